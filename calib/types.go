@@ -1,0 +1,230 @@
+// Package calib is curvekeeper's numerical core: weighted least-squares
+// calibration curves, their acceptance checks, detection limits and the
+// inverse prediction of unknown concentrations.
+//
+// It imports only the standard library and gonum, so it can be used and
+// tested on its own. Every result it produces supports, and never replaces,
+// the laboratory's accredited procedures: local accreditation, regulation and
+// the method SOP come first, and a qualified person reviews results before
+// release (see Cautions).
+package calib
+
+// EngineVersion identifies the numerical behaviour of this package. It is
+// stored with every fit so that history never silently changes; bump it
+// whenever a reported number could change for the same input.
+const EngineVersion = "calib/1.0.0"
+
+// Model is the form of the response curve.
+type Model string
+
+// The supported models. Coefficients are always reported in the order of the
+// model equation.
+const (
+	Linear       Model = "linear"        // y = b0 + b1·x, coefficients [b0, b1]
+	LinearOrigin Model = "linear_origin" // y = b1·x, coefficients [b1]
+	Quadratic    Model = "quadratic"     // y = b0 + b1·x + b2·x², coefficients [b0, b1, b2] (ISO 8466-2)
+)
+
+// Weighting is the weighting scheme of the least-squares fit.
+type Weighting string
+
+// The supported weighting schemes. Auto chooses among the others by the
+// smallest sum of absolute relative errors of the back-calculated standards
+// (Almeida et al., J. Chromatogr. B 774 (2002) 215).
+const (
+	WeightNone  Weighting = "none"
+	WeightInvX  Weighting = "1/x"
+	WeightInvX2 Weighting = "1/x^2"
+	WeightInvY  Weighting = "1/y"
+	WeightInvY2 Weighting = "1/y^2"
+	WeightInvS2 Weighting = "1/s^2" // from replicate SDs via a variance model
+	WeightAuto  Weighting = "auto"
+)
+
+// Check names, as reported in Report.Checks.
+const (
+	CheckMinLevels        = "min_levels"
+	CheckMandel           = "mandel"
+	CheckLackOfFit        = "lack_of_fit"
+	CheckHomoscedasticity = "homoscedasticity"
+	CheckBackCalculation  = "back_calculation"
+	CheckRSquared         = "r_squared"
+	CheckRSE              = "relative_standard_error"
+	CheckIntercept        = "intercept"
+	CheckResidualRuns     = "residual_runs"
+	CheckOutliers         = "outliers"
+)
+
+// Prediction flags.
+const (
+	FlagBelowRange   = "below_range"       // below the lowest accepted standard
+	FlagAboveRange   = "above_range"       // above the highest accepted standard (extrapolation)
+	FlagBelowLOD     = "below_lod"         // below the ICH Q2 detection limit
+	FlagBelowLOQ     = "below_loq"         // below the ICH Q2 quantification limit
+	FlagNegative     = "negative"          // negative point estimate
+	FlagNoRoot       = "no_root_in_range"  // quadratic: no root inside the calibrated range
+	FlagUnbounded    = "unbounded_interval" // Fieller g ≥ 1 or band does not close: no finite interval
+	FlagExtrapolated = "extrapolated"      // set together with below_range or above_range
+)
+
+// Point is one reading of a calibration standard: every replicate reading is
+// its own Point (and its own observation in the fit).
+type Point struct {
+	Level    string  // the standard's level label, e.g. "L3"; readings of one level share it
+	X        float64 // nominal concentration
+	Y        float64 // instrument response
+	Excluded bool    // excluded from the fit (still reported, with back-calculation)
+}
+
+// Options selects the model, the weighting and the acceptance policy.
+type Options struct {
+	Model      Model
+	Weighting  Weighting
+	Confidence float64 // two-sided confidence level for intervals; 0 means 0.95
+	Policy     Policy
+}
+
+// Policy holds every acceptance threshold. DefaultPolicy documents the
+// default of each and its source; the laboratory's method overrides them.
+type Policy struct {
+	MinLevels              int     // minimum number of distinct non-excluded levels
+	MandelAlpha            float64 // Mandel fitting test significance (ISO 8466-1: 0.01)
+	LackOfFitAlpha         float64 // lack-of-fit F-test significance
+	HomoscedasticityAlpha  float64 // ISO 8466-1 variance test significance (0.01)
+	BackCalcTolerancePct   float64 // |%RE| allowed for back-calculated standards (ICH M10: 15)
+	BackCalcLowTolerancePct float64 // |%RE| allowed at the lowest level (ICH M10: 20)
+	BackCalcMinPassFraction float64 // fraction of standards that must pass (ICH M10: 0.75)
+	MinRSquared            float64 // (US EPA SW-846 8000D: 0.99)
+	MaxRSEPct              float64 // relative standard error (US EPA SW-846 8000D: 20)
+	InterceptAlpha         float64 // significance of the intercept t-test
+	RunsAlpha              float64 // residual sign runs test significance
+	OutlierStudentized     float64 // |internally studentised residual| above which a reading is an outlier (3)
+	OutlierCooksD          float64 // Cook's distance above which a reading is influential (1)
+	// Mandatory lists the checks (by name) whose failure fails the verdict.
+	// A check not listed is advisory.
+	Mandatory []string
+}
+
+// Report is the full result of a fit. Predict uses only its exported fields,
+// so a Report that was stored (for example as JSON) and loaded again predicts
+// exactly as the original.
+type Report struct {
+	Model              Model
+	Weighting          Weighting // the scheme used (the chosen one when Auto was requested)
+	WeightingRequested Weighting
+	WeightCandidates   []WeightScore // with Auto: every candidate's score, so the choice is explained
+	WeightConvention   string        // e.g. "weights normalised to sum to n = 16 before residual_sd"
+	ZeroHandling       string        // how zero x or y were kept from producing infinite weights
+
+	Coefficients   []float64   // in model-equation order
+	StandardErrors []float64   // same order
+	Covariance     [][]float64 // s²(XᵀWX)⁻¹
+	ResidualSD     float64     // s(y/x), on the Σw = n weight scale
+	DF             int         // n − p
+	RSquared       float64     // weighted; uncentred for LinearOrigin
+	N              int         // readings in the fit
+	Levels         int         // distinct levels in the fit
+	Confidence     float64
+
+	// Sufficient statistics for inverse prediction (Σw = n scale).
+	SumW     float64 // Σw (= N)
+	MeanXW   float64 // x̄w
+	MeanYW   float64 // ȳw
+	SxxW     float64 // Σw(x − x̄w)²
+	SumWX2   float64 // Σw·x² (for the origin model)
+	Variance VarianceModel // for 1/s²: s(x) model giving an unknown's weight
+
+	Points []PointResult
+	Checks []Check
+	Limits Limits
+	Range  Range
+	Verdict  string // "pass" or "fail", from the checks the policy makes mandatory
+	Cautions []string
+	Engine   string // EngineVersion
+}
+
+// WeightScore is one candidate of automatic weight selection.
+type WeightScore struct {
+	Weighting Weighting
+	SumAbsRE  float64 // Σ|%RE| of back-calculated standards
+	Chosen    bool
+	Note      string // why a candidate was skipped, if it was
+}
+
+// VarianceModel describes how the response SD varies with concentration,
+// fitted to the level SDs for 1/s² weighting: s(x) = C0 + C1·x.
+type VarianceModel struct {
+	Kind string // "" when unused, else e.g. "linear_sd"
+	C0   float64
+	C1   float64
+}
+
+// PointResult is one reading with its diagnostics.
+type PointResult struct {
+	Level            string
+	X                float64
+	Y                float64
+	Weight           float64 // on the Σw = n scale; 0 when excluded
+	Excluded         bool
+	Fitted           float64
+	Residual         float64
+	WeightedResidual float64 // √w·residual
+	Leverage         float64
+	Studentized      float64 // internally studentised residual
+	CooksDistance    float64
+	BackCalculated   float64 // concentration read back from the curve
+	RelativeErrorPct float64 // 100·(back − nominal)/nominal; 0 with HasRelativeError false for nominal 0
+	HasRelativeError bool
+	HasBackCalc      bool // false when the curve has no root for this response
+}
+
+// Check is one acceptance or diagnostic rule.
+type Check struct {
+	Name      string
+	Statistic float64
+	Limit     float64
+	Passed    bool
+	Computed  bool // false when it could not be computed; then Passed is false and Detail says why
+	Mandatory bool
+	Source    string
+	Detail    string
+}
+
+// Limits holds detection and quantification limits, in concentration units
+// except CriticalValue (a response).
+type Limits struct {
+	LOD            float64 // ICH Q2: 3.3·σ/S, σ = residual SD
+	LOQ            float64 // ICH Q2: 10·σ/S
+	CriticalValue  float64 // ISO 11843-2 critical value of the response, y_c
+	CriticalConc   float64 // ISO 11843-2 critical value of the net concentration, x_c
+	DetectionLimit float64 // ISO 11843-2 minimum detectable value, x_d ≈ 2·x_c
+	Computed       bool
+	Detail         string
+}
+
+// Range is the working range, from the lowest to the highest accepted standard.
+type Range struct {
+	Low  float64
+	High float64
+}
+
+// Prediction is the inverse prediction of one unknown.
+type Prediction struct {
+	Concentration float64 // after the dilution factor
+	StandardError float64 // approximate (Miller & Miller form), after dilution
+	Interval      Interval
+	Flags         []string
+	Method        string // how the interval was obtained, e.g. "fieller"
+	Readings      int
+	MeanResponse  float64
+	Dilution      float64
+}
+
+// Interval is a confidence interval. When Bounded is false Low and High are 0
+// and carry no meaning: the interval is unbounded.
+type Interval struct {
+	Low     float64
+	High    float64
+	Level   float64
+	Bounded bool
+}

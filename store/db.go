@@ -1,0 +1,92 @@
+// Package store is curvekeeper's PostgreSQL layer: it owns every SQL string
+// and every pgx type. It imports calib, never the reverse.
+package store
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgconn"
+	"github.com/jackc/pgx/v5/pgxpool"
+)
+
+// DB is a handle on the service's database.
+type DB struct {
+	Pool *pgxpool.Pool
+}
+
+// Open connects to the database named by url (a PostgreSQL URL or keyword/value
+// string) and checks that it answers within the context's deadline.
+func Open(ctx context.Context, url string) (*DB, error) {
+	cfg, err := pgxpool.ParseConfig(url)
+	if err != nil {
+		return nil, fmt.Errorf("store: parse database url: %w", err)
+	}
+	if cfg.ConnConfig.ConnectTimeout == 0 {
+		cfg.ConnConfig.ConnectTimeout = 5 * time.Second
+	}
+	pool, err := pgxpool.NewWithConfig(ctx, cfg)
+	if err != nil {
+		return nil, fmt.Errorf("store: open pool: %w", err)
+	}
+	if err := pool.Ping(ctx); err != nil {
+		pool.Close()
+		return nil, fmt.Errorf("store: connect: %w", err)
+	}
+	return &DB{Pool: pool}, nil
+}
+
+// Close closes every connection of the pool.
+func (db *DB) Close() { db.Pool.Close() }
+
+// Ping reports whether the database answers.
+func (db *DB) Ping(ctx context.Context) error { return db.Pool.Ping(ctx) }
+
+// maxTxAttempts bounds the retries of a transaction that failed with a
+// serialization failure or a deadlock.
+const maxTxAttempts = 5
+
+// inTx runs fn in a transaction, commits it when fn returns nil and rolls it
+// back otherwise (the rollback runs in a defer, so a panic cannot leave it
+// open). A serialization failure (40001) or deadlock (40P01) is retried up to
+// maxTxAttempts times, so fn must be safe to run again.
+func (db *DB) inTx(ctx context.Context, fn func(pgx.Tx) error) error {
+	var err error
+	for attempt := 1; attempt <= maxTxAttempts; attempt++ {
+		err = db.tryTx(ctx, fn)
+		if err == nil || !retryable(err) {
+			return err
+		}
+	}
+	return err
+}
+
+func (db *DB) tryTx(ctx context.Context, fn func(pgx.Tx) error) (err error) {
+	tx, err := db.Pool.Begin(ctx)
+	if err != nil {
+		return fmt.Errorf("store: begin: %w", err)
+	}
+	defer func() {
+		if err != nil {
+			_ = tx.Rollback(context.WithoutCancel(ctx))
+		}
+	}()
+	if err = fn(tx); err != nil {
+		return err
+	}
+	if err = tx.Commit(ctx); err != nil {
+		return fmt.Errorf("store: commit: %w", err)
+	}
+	return nil
+}
+
+func retryable(err error) bool {
+	var pgErr *pgconn.PgError
+	if errors.As(err, &pgErr) {
+		return pgErr.Code == "40001" || pgErr.Code == "40P01"
+	}
+	return false
+}

@@ -1,0 +1,56 @@
+package store
+
+import (
+	"errors"
+	"fmt"
+)
+
+// Kind classifies an error for the caller; api maps each kind to one HTTP
+// status in a single table.
+type Kind int
+
+// The error kinds.
+const (
+	KindInternal    Kind = iota // anything unexpected; its text never reaches a client
+	KindInvalid                 // the request is well-formed but breaks a rule (422)
+	KindNotFound                // the named thing does not exist (404)
+	KindConflict                // the state forbids it (reviewed twice, key reused) (409)
+	KindUnavailable             // the database cannot be reached now (503)
+)
+
+// Error is an error with a kind, an optional JSON pointer to the offending
+// field of the request and a message fit for the client.
+type Error struct {
+	Kind    Kind
+	Field   string // JSON pointer, e.g. "/standards/2/concentration"; may be empty
+	Message string
+	Err     error // the cause, for the log; may be nil
+}
+
+func (e *Error) Error() string {
+	if e.Err != nil {
+		return fmt.Sprintf("%s: %v", e.Message, e.Err)
+	}
+	return e.Message
+}
+
+func (e *Error) Unwrap() error { return e.Err }
+
+// Errorf makes an *Error of kind k with a client-facing message.
+func Errorf(k Kind, format string, args ...any) error {
+	return &Error{Kind: k, Message: fmt.Sprintf(format, args...)}
+}
+
+// FieldError makes a KindInvalid *Error that names a field.
+func FieldError(field, format string, args ...any) error {
+	return &Error{Kind: KindInvalid, Field: field, Message: fmt.Sprintf(format, args...)}
+}
+
+// KindOf returns the kind of err, KindInternal when it carries none.
+func KindOf(err error) Kind {
+	var e *Error
+	if errors.As(err, &e) {
+		return e.Kind
+	}
+	return KindInternal
+}
