@@ -1,0 +1,310 @@
+package store
+
+import (
+	"context"
+	"encoding/base64"
+	"encoding/binary"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"slices"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/google/uuid"
+	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/calib"
+)
+
+// Verdicts and review statuses of a curve.
+const (
+	VerdictPass = "pass"
+	VerdictFail = "fail"
+
+	StatusPendingReview = "pending_review"
+	StatusApproved      = "approved"
+	StatusRejected      = "rejected"
+
+	DecisionApprove = "approve"
+	DecisionReject  = "reject"
+)
+
+// History page sizes.
+const (
+	DefaultCurveLimit = 50
+	MaxCurveLimit     = 1000
+)
+
+// CurveSummary is a curve's row without its report, as history lists it.
+type CurveSummary struct {
+	ID             string
+	RunID          string
+	RevisionOf     string // "" for a run's own fit
+	Method         string
+	MethodRevision int
+	Instrument     string
+	Analyte        string
+	Unit           string
+	Model          calib.Model
+	Weighting      calib.Weighting
+	Verdict        string // VerdictPass or VerdictFail
+	Status         string // StatusPendingReview, StatusApproved or StatusRejected
+	EngineVersion  string
+	AcquiredAt     time.Time
+	CreatedAt      time.Time
+	CreatedBy      string
+	ReviewedAt     *time.Time
+	ReviewedBy     string
+	// Copies of report values for trends; nil when not computed.
+	Slope, Intercept, ResidualSD, RSquared, LOD *float64
+}
+
+// Curve is a stored curve with its report and, once reviewed, its review.
+type Curve struct {
+	CurveSummary
+	Report *calib.Report
+	Review *Review // nil while pending review
+}
+
+// Review is the one review a curve can have.
+type Review struct {
+	CurveID  string
+	Decision string // DecisionApprove or DecisionReject
+	Reason   string
+	Actor    string
+	At       time.Time
+}
+
+const curveColumns = `id, run_id, revision_of, method, method_revision, instrument, analyte, unit, model, weighting,
+verdict, status, engine_version, acquired_at, created_at, created_by, reviewed_at, reviewed_by,
+slope, intercept, residual_sd, r_squared, lod`
+
+func scanCurveSummary(row pgx.Row, extra ...any) (CurveSummary, error) {
+	var (
+		c                    CurveSummary
+		revisionOf, reviewer *string
+		model, weighting     string
+	)
+	dest := append([]any{&c.ID, &c.RunID, &revisionOf, &c.Method, &c.MethodRevision, &c.Instrument, &c.Analyte,
+		&c.Unit, &model, &weighting, &c.Verdict, &c.Status, &c.EngineVersion, &c.AcquiredAt, &c.CreatedAt,
+		&c.CreatedBy, &c.ReviewedAt, &reviewer, &c.Slope, &c.Intercept, &c.ResidualSD, &c.RSquared, &c.LOD}, extra...)
+	if err := row.Scan(dest...); err != nil {
+		return CurveSummary{}, err
+	}
+	c.Model, c.Weighting = calib.Model(model), calib.Weighting(weighting)
+	if revisionOf != nil {
+		c.RevisionOf = *revisionOf
+	}
+	if reviewer != nil {
+		c.ReviewedBy = *reviewer
+	}
+	return c, nil
+}
+
+// GetCurve returns curve id with its decoded report and its review.
+func (db *DB) GetCurve(ctx context.Context, id string) (*Curve, error) {
+	id, err := parseID("curve", id)
+	if err != nil {
+		return nil, err
+	}
+	var (
+		report                  []byte
+		decision, reason, actor *string
+		at                      *time.Time
+	)
+	summary, err := scanCurveSummary(db.Pool.QueryRow(ctx, `
+SELECT c.`+strings.ReplaceAll(curveColumns, ", ", ", c.")+`, c.report, r.decision, r.reason, r.actor, r.at
+FROM curves c LEFT JOIN reviews r ON r.curve_id = c.id
+WHERE c.id = $1`, id), &report, &decision, &reason, &actor, &at)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return nil, Errorf(KindNotFound, "curve %s not found", id)
+	}
+	if err != nil {
+		return nil, classify("select curve "+id, err)
+	}
+	c := &Curve{CurveSummary: summary, Report: new(calib.Report)}
+	if err := json.Unmarshal(report, c.Report); err != nil {
+		return nil, fmt.Errorf("store: decode report of curve %s: %w", id, err)
+	}
+	if decision != nil {
+		c.Review = &Review{CurveID: id, Decision: *decision, Reason: *reason, Actor: *actor, At: *at}
+	}
+	return c, nil
+}
+
+// CurveFilter selects curves for ListCurves. Empty fields do not filter.
+type CurveFilter struct {
+	Instrument string
+	Analyte    string
+	Method     string
+	Status     string
+	Verdict    string
+	From       time.Time // acquired_at >= From
+	To         time.Time // acquired_at < To
+	Limit      int       // 0 means DefaultCurveLimit; at most MaxCurveLimit
+	Cursor     string    // NextCursor of the previous page; "" for the first
+}
+
+// CurvePage is one page of history.
+type CurvePage struct {
+	Curves     []CurveSummary
+	NextCursor string // "" on the last page
+}
+
+// encodeCursor makes the opaque cursor after (acquiredAt, id): base64url of
+// the time in Unix microseconds (PostgreSQL's precision) and the 16 id bytes.
+func encodeCursor(acquiredAt time.Time, id string) (string, error) {
+	u, err := uuid.Parse(id)
+	if err != nil {
+		return "", fmt.Errorf("store: cursor id: %w", err)
+	}
+	b := make([]byte, 8, 24)
+	binary.BigEndian.PutUint64(b, uint64(acquiredAt.UnixMicro()))
+	b = append(b, u[:]...)
+	return base64.RawURLEncoding.EncodeToString(b), nil
+}
+
+func decodeCursor(s string) (time.Time, string, error) {
+	b, err := base64.RawURLEncoding.DecodeString(s)
+	if err != nil || len(b) != 24 {
+		return time.Time{}, "", FieldError("/cursor", "cursor is not one this service issued")
+	}
+	u, _ := uuid.FromBytes(b[8:])
+	return time.UnixMicro(int64(binary.BigEndian.Uint64(b[:8]))).UTC(), u.String(), nil
+}
+
+// ListCurves returns curves newest first by (acquired_at, id), one page at a
+// time. Pages are cut by keyset on that pair, never by OFFSET, so page 1,000
+// costs what page 1 costs and a curve stored between two calls neither shifts
+// nor repeats the pages after the cursor.
+func (db *DB) ListCurves(ctx context.Context, f CurveFilter) (*CurvePage, error) {
+	limit := f.Limit
+	switch {
+	case limit == 0:
+		limit = DefaultCurveLimit
+	case limit < 0 || limit > MaxCurveLimit:
+		return nil, FieldError("/limit", "limit must be between 1 and %d", MaxCurveLimit)
+	}
+	if f.Status != "" && !slices.Contains([]string{StatusPendingReview, StatusApproved, StatusRejected}, f.Status) {
+		return nil, FieldError("/status", "unknown status %q", f.Status)
+	}
+	if f.Verdict != "" && f.Verdict != VerdictPass && f.Verdict != VerdictFail {
+		return nil, FieldError("/verdict", "unknown verdict %q", f.Verdict)
+	}
+	var (
+		where []string
+		args  []any
+	)
+	add := func(cond string, v any) {
+		args = append(args, v)
+		where = append(where, strings.ReplaceAll(cond, "?", "$"+strconv.Itoa(len(args))))
+	}
+	for _, eq := range []struct{ col, v string }{
+		{"instrument", f.Instrument}, {"analyte", f.Analyte}, {"method", f.Method},
+		{"status", f.Status}, {"verdict", f.Verdict},
+	} {
+		if eq.v != "" {
+			add(eq.col+" = ?", eq.v)
+		}
+	}
+	if !f.From.IsZero() {
+		add("acquired_at >= ?", f.From)
+	}
+	if !f.To.IsZero() {
+		add("acquired_at < ?", f.To)
+	}
+	if f.Cursor != "" {
+		at, id, err := decodeCursor(f.Cursor)
+		if err != nil {
+			return nil, err
+		}
+		args = append(args, at, id)
+		where = append(where, fmt.Sprintf("(acquired_at, id) < ($%d, $%d)", len(args)-1, len(args)))
+	}
+	sql := `SELECT ` + curveColumns + ` FROM curves`
+	if len(where) > 0 {
+		sql += ` WHERE ` + strings.Join(where, ` AND `)
+	}
+	args = append(args, limit+1)
+	sql += fmt.Sprintf(` ORDER BY acquired_at DESC, id DESC LIMIT $%d`, len(args))
+
+	rows, err := db.Pool.Query(ctx, sql, args...)
+	if err != nil {
+		return nil, classify("list curves", err)
+	}
+	curves, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (CurveSummary, error) {
+		return scanCurveSummary(row)
+	})
+	if err != nil {
+		return nil, classify("scan curves", err)
+	}
+	page := &CurvePage{Curves: curves}
+	if len(curves) > limit {
+		page.Curves = curves[:limit]
+		last := page.Curves[limit-1]
+		if page.NextCursor, err = encodeCursor(last.AcquiredAt, last.ID); err != nil {
+			return nil, err
+		}
+	}
+	return page, nil
+}
+
+// ReviewCurve records the review of curve id and moves it from
+// pending_review to approved (decision "approve") or rejected ("reject"),
+// with its audit row, in one transaction. A curve whose verdict is fail can be
+// approved only with a reason (KindInvalid otherwise); a curve already
+// reviewed is KindConflict, also when two reviews race.
+func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor string) (*Review, error) {
+	id, err := parseID("curve", id)
+	if err != nil {
+		return nil, err
+	}
+	status := map[string]string{DecisionApprove: StatusApproved, DecisionReject: StatusRejected}[decision]
+	if status == "" {
+		return nil, FieldError("/decision", "decision must be %q or %q", DecisionApprove, DecisionReject)
+	}
+	reason = strings.TrimSpace(reason)
+	var rv *Review
+	err = db.inTx(ctx, func(tx pgx.Tx) error {
+		var current, verdict string
+		err := tx.QueryRow(ctx, `SELECT status, verdict FROM curves WHERE id = $1 FOR UPDATE`, id).Scan(&current, &verdict)
+		if errors.Is(err, pgx.ErrNoRows) {
+			return Errorf(KindNotFound, "curve %s not found", id)
+		}
+		if err != nil {
+			return classify("select curve "+id, err)
+		}
+		if current != StatusPendingReview {
+			return Errorf(KindConflict, "curve %s was already reviewed: it is %s", id, current)
+		}
+		if decision == DecisionApprove && verdict == VerdictFail && reason == "" {
+			return FieldError("/reason", "a curve that failed its acceptance checks can be approved only with a reason")
+		}
+		rv = &Review{CurveID: id, Decision: decision, Reason: reason, Actor: actor}
+		err = tx.QueryRow(ctx, `INSERT INTO reviews (curve_id, decision, reason, actor) VALUES ($1, $2, $3, $4) RETURNING at`,
+			id, decision, reason, actor).Scan(&rv.At)
+		if err != nil {
+			if pgCode(err) == codeUniqueViolation {
+				return &Error{Kind: KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
+			}
+			return classify("insert review", err)
+		}
+		_, err = tx.Exec(ctx, `UPDATE curves SET status = $2, reviewed_at = $3, reviewed_by = $4 WHERE id = $1`,
+			id, status, rv.At, actor)
+		if err != nil {
+			if pgCode(err) == codeImmutable {
+				return &Error{Kind: KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
+			}
+			return classify("update curve status", err)
+		}
+		return writeAudit(ctx, tx, actor, ActionCurveReview, entityCurve, id, map[string]any{
+			"decision": decision, "reason": reason, "from": current, "to": status, "verdict": verdict,
+		})
+	})
+	if err != nil {
+		return nil, classify("review curve "+id, err)
+	}
+	return rv, nil
+}

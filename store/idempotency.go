@@ -1,0 +1,71 @@
+package store
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+
+	"github.com/jackc/pgx/v5"
+)
+
+// Idempotency keys are scoped to the token that used them (primary key
+// token_id, key): keys are chosen by clients, and two clients choosing the
+// same key must neither collide nor read each other's response.
+const (
+	// sqlClaimKey claims a key for a new run. ON CONFLICT waits for a
+	// concurrent transaction holding the same key to finish; if it
+	// committed, no row is returned and the caller replays its response.
+	sqlClaimKey = `
+INSERT INTO idempotency_keys (token_id, key, request_hash, run_id, response_status, response_body)
+VALUES ($1, $2, $3, $4, 201, $5)
+ON CONFLICT (token_id, key) DO NOTHING
+RETURNING true`
+	sqlSelectKey = `SELECT request_hash, response_body FROM idempotency_keys WHERE token_id = $1 AND key = $2`
+)
+
+// errKeyReused is the refusal of a key used before with another body.
+func errKeyReused() error {
+	return &Error{Kind: KindInvalid, Field: "/headers/Idempotency-Key", Message: "Idempotency-Key reused with a different body"}
+}
+
+// querier is what storedRun needs of a pool or a transaction.
+type querier interface {
+	QueryRow(ctx context.Context, sql string, args ...any) pgx.Row
+}
+
+// storedRun returns the response stored under (tokenID, key) with Replayed
+// set: KindNotFound when the key is unused, KindInvalid when it was used with
+// another request hash.
+func storedRun(ctx context.Context, q querier, tokenID, key string, requestHash []byte) (*RunCreated, error) {
+	var hash, body []byte
+	err := q.QueryRow(ctx, sqlSelectKey, tokenID, key).Scan(&hash, &body)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return nil, Errorf(KindNotFound, "idempotency key not used")
+	}
+	if err != nil {
+		return nil, classify("select idempotency key", err)
+	}
+	if !bytes.Equal(hash, requestHash) {
+		return nil, errKeyReused()
+	}
+	var out RunCreated
+	if err := json.Unmarshal(body, &out); err != nil {
+		return nil, fmt.Errorf("store: decode stored response of idempotency key: %w", err)
+	}
+	out.Replayed = true
+	return &out, nil
+}
+
+// LookupIdempotency returns the run stored under (tokenID, key), so the api
+// can answer a retry without fitting again: KindNotFound when the key is
+// unused, KindInvalid when it was used with a different request hash.
+// CreateRun makes the same decision race-free; this is only a shortcut.
+func (db *DB) LookupIdempotency(ctx context.Context, tokenID, key string, requestHash []byte) (*RunCreated, error) {
+	tokenID, err := parseID("token", tokenID)
+	if err != nil {
+		return nil, err
+	}
+	return storedRun(ctx, db.Pool, tokenID, key, requestHash)
+}

@@ -1,0 +1,252 @@
+package store
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"reflect"
+	"slices"
+	"strings"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/calib"
+)
+
+// Analyte is one analyte a method measures, with its unit (a UCUM code).
+type Analyte struct {
+	Name string `json:"name"`
+	Unit string `json:"unit"`
+}
+
+// MethodInput is a method as an administrator defines it. Acceptance must be
+// complete: the api fills every threshold the request leaves out from
+// calib.DefaultPolicy() before calling CreateMethod.
+type MethodInput struct {
+	Name       string
+	Model      calib.Model
+	Weighting  calib.Weighting
+	Confidence float64 // two-sided, in (0, 1)
+	Analytes   []Analyte
+	Acceptance calib.Policy
+}
+
+// Method is one stored revision of a method.
+type Method struct {
+	Name       string
+	Revision   int
+	Model      calib.Model
+	Weighting  calib.Weighting
+	Confidence float64
+	Analytes   []Analyte
+	Acceptance calib.Policy
+	CreatedAt  time.Time
+	CreatedBy  string
+}
+
+// Options returns the engine options this method revision fits with.
+func (m *Method) Options() calib.Options {
+	return calib.Options{Model: m.Model, Weighting: m.Weighting, Confidence: m.Confidence, Policy: m.Acceptance}
+}
+
+// Analyte returns the method's analyte called name.
+func (m *Method) Analyte(name string) (Analyte, bool) {
+	for _, a := range m.Analytes {
+		if a.Name == name {
+			return a, true
+		}
+	}
+	return Analyte{}, false
+}
+
+var (
+	models     = []calib.Model{calib.Linear, calib.LinearOrigin, calib.Quadratic}
+	weightings = []calib.Weighting{calib.WeightNone, calib.WeightInvX, calib.WeightInvX2,
+		calib.WeightInvY, calib.WeightInvY2, calib.WeightInvS2, calib.WeightAuto}
+)
+
+func checkMethod(in MethodInput) error {
+	if strings.TrimSpace(in.Name) == "" || len(in.Name) > 200 {
+		return FieldError("/name", "name must be 1 to 200 characters")
+	}
+	if !slices.Contains(models, in.Model) {
+		return FieldError("/model", "unknown model %q", in.Model)
+	}
+	if !slices.Contains(weightings, in.Weighting) {
+		return FieldError("/weighting", "unknown weighting %q", in.Weighting)
+	}
+	if !(in.Confidence > 0 && in.Confidence < 1) {
+		return FieldError("/confidence", "confidence must be between 0 and 1, exclusive")
+	}
+	if len(in.Analytes) == 0 {
+		return FieldError("/analytes", "at least one analyte is required")
+	}
+	seen := map[string]bool{}
+	for i, a := range in.Analytes {
+		if strings.TrimSpace(a.Name) == "" {
+			return FieldError(fmt.Sprintf("/analytes/%d/name", i), "analyte name is required")
+		}
+		if strings.TrimSpace(a.Unit) == "" {
+			return FieldError(fmt.Sprintf("/analytes/%d/unit", i), "unit is required")
+		}
+		if seen[a.Name] {
+			return FieldError(fmt.Sprintf("/analytes/%d/name", i), "analyte %q is listed twice", a.Name)
+		}
+		seen[a.Name] = true
+	}
+	v := reflect.ValueOf(in.Acceptance)
+	for i := 0; i < v.NumField(); i++ {
+		if f := v.Field(i); f.Kind() == reflect.Float64 && (math.IsNaN(f.Float()) || math.IsInf(f.Float(), 0)) {
+			return FieldError("/acceptance", "%s must be a finite number", v.Type().Field(i).Name)
+		}
+	}
+	return nil
+}
+
+// normalisePolicy passes p through its stored JSON form, so that a policy
+// compares equal to the one it is stored as.
+func normalisePolicy(p calib.Policy) (calib.Policy, []byte, error) {
+	b, err := json.Marshal(p)
+	if err != nil {
+		return calib.Policy{}, nil, fmt.Errorf("store: marshal acceptance: %w", err)
+	}
+	var out calib.Policy
+	if err := json.Unmarshal(b, &out); err != nil {
+		return calib.Policy{}, nil, fmt.Errorf("store: unmarshal acceptance: %w", err)
+	}
+	return out, b, nil
+}
+
+// CreateMethod stores in as revision 1 of a new method, or, when a method of
+// that name exists, as its next revision. When in equals the latest revision
+// in every field, nothing is written and that revision is returned with
+// created false. Concurrent calls for one name are serialised by an
+// advisory lock, so revisions are numbered without gaps or duplicates.
+func (db *DB) CreateMethod(ctx context.Context, in MethodInput, actor string) (m *Method, created bool, err error) {
+	if err := checkMethod(in); err != nil {
+		return nil, false, err
+	}
+	policy, policyJSON, err := normalisePolicy(in.Acceptance)
+	if err != nil {
+		return nil, false, err
+	}
+	in.Acceptance = policy
+	analytesJSON, err := json.Marshal(in.Analytes)
+	if err != nil {
+		return nil, false, fmt.Errorf("store: marshal analytes: %w", err)
+	}
+	err = db.inTx(ctx, func(tx pgx.Tx) error {
+		m, created = nil, false
+		if _, err := tx.Exec(ctx, `SELECT pg_advisory_xact_lock(hashtextextended('curvekeeper.method:' || $1, 0))`, in.Name); err != nil {
+			return classify("lock method name", err)
+		}
+		latest, err := scanMethod(tx.QueryRow(ctx, sqlSelectMethod+` WHERE name = $1 ORDER BY revision DESC LIMIT 1`, in.Name))
+		switch {
+		case errors.Is(err, pgx.ErrNoRows):
+		case err != nil:
+			return classify("select method "+in.Name, err)
+		case sameMethod(latest, in):
+			m = latest
+			return nil
+		}
+		revision := 1
+		if latest != nil {
+			revision = latest.Revision + 1
+		}
+		m, err = scanMethod(tx.QueryRow(ctx, `
+INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8)
+RETURNING `+methodColumns,
+			in.Name, revision, string(in.Model), string(in.Weighting), in.Confidence, analytesJSON, policyJSON, actor))
+		if err != nil {
+			return classify("insert method "+in.Name, err)
+		}
+		created = true
+		action := ActionMethodCreate
+		if revision > 1 {
+			action = ActionMethodRevise
+		}
+		return writeAudit(ctx, tx, actor, action, entityMethod, fmt.Sprintf("%s/%d", m.Name, m.Revision),
+			map[string]any{"name": m.Name, "revision": m.Revision, "model": m.Model, "weighting": m.Weighting,
+				"confidence": m.Confidence, "analytes": m.Analytes, "acceptance": json.RawMessage(policyJSON)})
+	})
+	if err != nil {
+		return nil, false, classify("create method", err)
+	}
+	return m, created, nil
+}
+
+func sameMethod(m *Method, in MethodInput) bool {
+	return m.Model == in.Model && m.Weighting == in.Weighting && m.Confidence == in.Confidence &&
+		slices.Equal(m.Analytes, in.Analytes) && reflect.DeepEqual(m.Acceptance, in.Acceptance)
+}
+
+const (
+	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by`
+	sqlSelectMethod = `SELECT ` + methodColumns + ` FROM methods`
+)
+
+func scanMethod(row pgx.Row) (*Method, error) {
+	var (
+		m                    Method
+		model, weighting     string
+		analytes, acceptance []byte
+	)
+	if err := row.Scan(&m.Name, &m.Revision, &model, &weighting, &m.Confidence, &analytes, &acceptance, &m.CreatedAt, &m.CreatedBy); err != nil {
+		return nil, err
+	}
+	m.Model, m.Weighting = calib.Model(model), calib.Weighting(weighting)
+	if err := json.Unmarshal(analytes, &m.Analytes); err != nil {
+		return nil, fmt.Errorf("decode analytes of method %s/%d: %w", m.Name, m.Revision, err)
+	}
+	if err := json.Unmarshal(acceptance, &m.Acceptance); err != nil {
+		return nil, fmt.Errorf("decode acceptance of method %s/%d: %w", m.Name, m.Revision, err)
+	}
+	return &m, nil
+}
+
+// GetMethod returns the latest revision of method name.
+func (db *DB) GetMethod(ctx context.Context, name string) (*Method, error) {
+	m, err := scanMethod(db.Pool.QueryRow(ctx, sqlSelectMethod+` WHERE name = $1 ORDER BY revision DESC LIMIT 1`, name))
+	if errors.Is(err, pgx.ErrNoRows) {
+		return nil, Errorf(KindNotFound, "method %q not found", name)
+	}
+	if err != nil {
+		return nil, classify("select method "+name, err)
+	}
+	return m, nil
+}
+
+// GetMethodRevision returns revision rev of method name.
+func (db *DB) GetMethodRevision(ctx context.Context, name string, rev int) (*Method, error) {
+	m, err := scanMethod(db.Pool.QueryRow(ctx, sqlSelectMethod+` WHERE name = $1 AND revision = $2`, name, rev))
+	if errors.Is(err, pgx.ErrNoRows) {
+		return nil, Errorf(KindNotFound, "method %q revision %d not found", name, rev)
+	}
+	if err != nil {
+		return nil, classify(fmt.Sprintf("select method %s/%d", name, rev), err)
+	}
+	return m, nil
+}
+
+// ListMethods returns the latest revision of every method, by name.
+func (db *DB) ListMethods(ctx context.Context) ([]Method, error) {
+	rows, err := db.Pool.Query(ctx, `SELECT DISTINCT ON (name) `+methodColumns+` FROM methods ORDER BY name, revision DESC`)
+	if err != nil {
+		return nil, classify("list methods", err)
+	}
+	methods, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (Method, error) {
+		m, err := scanMethod(row)
+		if err != nil {
+			return Method{}, err
+		}
+		return *m, nil
+	})
+	if err != nil {
+		return nil, classify("scan methods", err)
+	}
+	return methods, nil
+}

@@ -1,0 +1,523 @@
+package store
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"strings"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/calib"
+)
+
+// Source formats of a run.
+const (
+	FormatJSON = "json"
+	FormatCSV  = "csv"
+)
+
+// Standard is one calibration standard of a run: every response is one
+// replicate reading, in the order measured.
+type Standard struct {
+	Analyte       string    `json:"analyte"`
+	Level         string    `json:"level"`
+	Concentration float64   `json:"concentration"`
+	Responses     []float64 `json:"responses"`
+}
+
+// Sample is one unknown posted with a run.
+type Sample struct {
+	ID        string    `json:"id"`
+	Analyte   string    `json:"analyte"`
+	Responses []float64 `json:"responses"`
+	Dilution  float64   `json:"dilution"` // 0 in RunInput means 1
+}
+
+// RunInput is a run as the api received and validated it.
+type RunInput struct {
+	Method         string
+	MethodRevision int // the revision the curves were fitted with
+	Instrument     string
+	AcquiredAt     time.Time
+	Operator       string // "" when not given
+	SourceFormat   string // FormatJSON or FormatCSV
+	// RequestHash identifies the request body for idempotent replay (the
+	// api's choice of hash, e.g. SHA-256 of the body and content type).
+	RequestHash []byte
+	// IdempotencyKey is the client's Idempotency-Key, "" when absent. Keys
+	// are scoped to TokenID.
+	IdempotencyKey string
+	TokenID        string
+	Actor          string // who posted it, for the audit trail
+	Standards      []Standard
+	Samples        []Sample
+}
+
+// CurveInput is one fitted curve of a run, fitted by the api before
+// CreateRun (with calib.Fit, or calib.FailedReport when it could not be
+// fitted). Model, weighting, verdict and engine version are taken from Report.
+type CurveInput struct {
+	Analyte string
+	Unit    string
+	Report  *calib.Report
+}
+
+// RunCreated is what CreateRun stored; it is also the response body kept for
+// idempotent replay, so its JSON is the api's 201 body.
+type RunCreated struct {
+	ID     string         `json:"id"`
+	Curves []CreatedCurve `json:"curves"`
+	// Replayed is true when the run was stored by an earlier request with
+	// the same idempotency key and body, and nothing was written now.
+	Replayed bool `json:"-"`
+}
+
+// CreatedCurve names one curve of a created run.
+type CreatedCurve struct {
+	ID      string `json:"id"`
+	Analyte string `json:"analyte"`
+	Verdict string `json:"verdict"`
+}
+
+// storedPayload is the normalised run kept in runs.payload.
+type storedPayload struct {
+	Method         string     `json:"method"`
+	MethodRevision int        `json:"method_revision"`
+	Instrument     string     `json:"instrument"`
+	AcquiredAt     time.Time  `json:"acquired_at"`
+	Operator       string     `json:"operator,omitempty"`
+	SourceFormat   string     `json:"source_format"`
+	Standards      []Standard `json:"standards"`
+	Samples        []Sample   `json:"samples"`
+}
+
+func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
+
+// checkRun refuses input the schema would refuse, naming the field, before
+// anything is sent to the database.
+func checkRun(in *RunInput, curves []CurveInput) error {
+	switch {
+	case strings.TrimSpace(in.Method) == "":
+		return FieldError("/method", "method is required")
+	case in.MethodRevision < 1:
+		return Errorf(KindInvalid, "method revision is required")
+	case strings.TrimSpace(in.Instrument) == "" || len(in.Instrument) > 200:
+		return FieldError("/instrument", "instrument must be 1 to 200 characters")
+	case in.AcquiredAt.IsZero():
+		return FieldError("/acquired_at", "acquired_at is required")
+	case in.SourceFormat != FormatJSON && in.SourceFormat != FormatCSV:
+		return Errorf(KindInvalid, "unknown source format %q", in.SourceFormat)
+	case len(in.RequestHash) == 0:
+		return Errorf(KindInvalid, "request hash is required")
+	case strings.TrimSpace(in.Actor) == "":
+		return Errorf(KindInvalid, "actor is required")
+	case len(in.Standards) == 0:
+		return FieldError("/standards", "at least one standard is required")
+	}
+	if in.IdempotencyKey != "" {
+		if len(in.IdempotencyKey) > 255 {
+			return Errorf(KindInvalid, "Idempotency-Key must be at most 255 characters")
+		}
+		if _, err := parseID("token", in.TokenID); err != nil {
+			return Errorf(KindInvalid, "an Idempotency-Key needs the token id it is scoped to")
+		}
+	}
+	type levelKey struct{ analyte, level string }
+	seen := map[levelKey]int{}
+	for i, s := range in.Standards {
+		p := fmt.Sprintf("/standards/%d", i)
+		switch {
+		case strings.TrimSpace(s.Analyte) == "":
+			return FieldError(p+"/analyte", "analyte is required")
+		case strings.TrimSpace(s.Level) == "":
+			return FieldError(p+"/level", "level is required")
+		case !finite(s.Concentration) || s.Concentration < 0:
+			return FieldError(p+"/concentration", "concentration must be a finite number >= 0")
+		case len(s.Responses) == 0:
+			return FieldError(p+"/responses", "at least one response is required")
+		}
+		if j, dup := seen[levelKey{s.Analyte, s.Level}]; dup {
+			return FieldError(p+"/level", "level %q of analyte %q is given twice (also /standards/%d)", s.Level, s.Analyte, j)
+		}
+		seen[levelKey{s.Analyte, s.Level}] = i
+		for k, r := range s.Responses {
+			if !finite(r) {
+				return FieldError(fmt.Sprintf("%s/responses/%d", p, k), "response must be a finite number")
+			}
+		}
+	}
+	for i := range in.Samples {
+		s := &in.Samples[i]
+		p := fmt.Sprintf("/samples/%d", i)
+		if s.Dilution == 0 {
+			s.Dilution = 1
+		}
+		switch {
+		case strings.TrimSpace(s.ID) == "" || len(s.ID) > 200:
+			return FieldError(p+"/id", "sample id must be 1 to 200 characters")
+		case strings.TrimSpace(s.Analyte) == "":
+			return FieldError(p+"/analyte", "analyte is required")
+		case len(s.Responses) == 0:
+			return FieldError(p+"/responses", "at least one response is required")
+		case !finite(s.Dilution) || s.Dilution <= 0:
+			return FieldError(p+"/dilution", "dilution must be a finite number > 0")
+		}
+		for k, r := range s.Responses {
+			if !finite(r) {
+				return FieldError(fmt.Sprintf("%s/responses/%d", p, k), "response must be a finite number")
+			}
+		}
+	}
+	analytes := map[string]bool{}
+	for i, c := range curves {
+		if c.Report == nil {
+			return fmt.Errorf("store: curve %d (%s) has no report", i, c.Analyte)
+		}
+		if analytes[c.Analyte] {
+			return fmt.Errorf("store: two curves for analyte %q", c.Analyte)
+		}
+		analytes[c.Analyte] = true
+	}
+	return nil
+}
+
+// preparedCurve is a curve ready to insert: ids assigned, report marshalled.
+type preparedCurve struct {
+	id        string
+	in        CurveInput
+	model     string
+	weighting string
+	verdict   string
+	engine    string
+	report    []byte
+	scalars   curveScalars
+}
+
+// curveScalars are the report values copied into columns for trends.
+type curveScalars struct {
+	slope, intercept, residualSD, rSquared, lod *float64
+}
+
+func fptr(v float64) *float64 {
+	if !finite(v) {
+		return nil
+	}
+	return &v
+}
+
+// scalarsOf copies slope, intercept, residual SD, R² and LOD out of a report.
+// They are NULL when the report has no fit; slope is b1 in every model and
+// the intercept b0 (NULL for linear_origin, which has none).
+func scalarsOf(r *calib.Report) curveScalars {
+	var s curveScalars
+	c := r.Coefficients
+	switch {
+	case r.Model == calib.LinearOrigin && len(c) == 1:
+		s.slope = fptr(c[0])
+	case (r.Model == calib.Linear && len(c) == 2) || (r.Model == calib.Quadratic && len(c) == 3):
+		s.intercept, s.slope = fptr(c[0]), fptr(c[1])
+	default:
+		return s
+	}
+	s.residualSD, s.rSquared = fptr(r.ResidualSD), fptr(r.RSquared)
+	if r.Limits.Computed {
+		s.lod = fptr(r.Limits.LOD)
+	}
+	return s
+}
+
+func prepareCurve(c CurveInput) (preparedCurve, error) {
+	id, err := newID()
+	if err != nil {
+		return preparedCurve{}, err
+	}
+	r := c.Report
+	p := preparedCurve{id: id, in: c, model: string(r.Model), weighting: string(r.Weighting),
+		verdict: r.Verdict, engine: r.Engine, scalars: scalarsOf(r)}
+	if p.weighting == "" {
+		p.weighting = string(r.WeightingRequested)
+	}
+	if p.engine == "" {
+		p.engine = calib.EngineVersion
+	}
+	if p.verdict != VerdictPass && p.verdict != VerdictFail {
+		return preparedCurve{}, fmt.Errorf("store: curve %s: report verdict %q is neither pass nor fail", c.Analyte, r.Verdict)
+	}
+	if p.report, err = json.Marshal(r); err != nil {
+		return preparedCurve{}, fmt.Errorf("store: marshal report of curve %s: %w", c.Analyte, err)
+	}
+	return p, nil
+}
+
+const (
+	sqlInsertRun = `
+INSERT INTO runs (id, method, method_revision, instrument, acquired_at, operator, received_by, source_format, request_hash, payload)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10)`
+	sqlInsertReadings = `
+INSERT INTO readings (run_id, analyte, level, replicate, standard, concentration, response)
+SELECT $1, * FROM unnest($2::text[], $3::text[], $4::int[], $5::int[], $6::float8[], $7::float8[])`
+	sqlInsertSample = `
+INSERT INTO run_samples (run_id, position, sample_id, analyte, responses, dilution)
+VALUES ($1, $2, $3, $4, $5, $6)`
+	sqlInsertCurve = `
+INSERT INTO curves (id, run_id, method, method_revision, instrument, analyte, unit, model, weighting, verdict,
+                    engine_version, report, acquired_at, created_by, slope, intercept, residual_sd, r_squared, lod)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19)`
+)
+
+// CreateRun stores a run, its readings and samples, its fitted curves (each
+// pending review) and their audit rows in one transaction, and returns the
+// ids it assigned. The run's rows go to the database in one batch.
+//
+// With an IdempotencyKey the key is claimed first, in the same transaction:
+// a concurrent request with the same key (and token) waits for this one to
+// finish. If the key was already used with the same RequestHash, nothing is
+// written and the original RunCreated is returned with Replayed set; with a
+// different hash the result is KindInvalid ("Idempotency-Key reused with a
+// different body").
+func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (*RunCreated, error) {
+	if err := checkRun(&in, curves); err != nil {
+		return nil, err
+	}
+	runID, err := newID()
+	if err != nil {
+		return nil, err
+	}
+	created := &RunCreated{ID: runID, Curves: []CreatedCurve{}}
+	prepared := make([]preparedCurve, len(curves))
+	for i, c := range curves {
+		if prepared[i], err = prepareCurve(c); err != nil {
+			return nil, err
+		}
+		created.Curves = append(created.Curves, CreatedCurve{ID: prepared[i].id, Analyte: c.Analyte, Verdict: prepared[i].verdict})
+	}
+	body, err := json.Marshal(created)
+	if err != nil {
+		return nil, fmt.Errorf("store: marshal run response: %w", err)
+	}
+	samples := in.Samples
+	if samples == nil {
+		samples = []Sample{}
+	}
+	payload, err := json.Marshal(storedPayload{Method: in.Method, MethodRevision: in.MethodRevision,
+		Instrument: in.Instrument, AcquiredAt: in.AcquiredAt, Operator: in.Operator,
+		SourceFormat: in.SourceFormat, Standards: in.Standards, Samples: samples})
+	if err != nil {
+		return nil, fmt.Errorf("store: marshal run payload: %w", err)
+	}
+	var replay *RunCreated
+	err = db.inTx(ctx, func(tx pgx.Tx) error {
+		replay = nil
+		if in.IdempotencyKey != "" {
+			var claimed bool
+			err := tx.QueryRow(ctx, sqlClaimKey, in.TokenID, in.IdempotencyKey, in.RequestHash, runID, body).Scan(&claimed)
+			if errors.Is(err, pgx.ErrNoRows) {
+				// Someone holds the key and has committed: replay or refuse.
+				replay, err = storedRun(ctx, tx, in.TokenID, in.IdempotencyKey, in.RequestHash)
+				if KindOf(err) == KindNotFound {
+					return fmt.Errorf("store: idempotency key %q vanished while claimed", in.IdempotencyKey)
+				}
+				return err
+			}
+			if err != nil {
+				return classify("claim idempotency key", err)
+			}
+		}
+		// A batch is built per attempt: inTx may run this function again.
+		batch, err := runBatch(&in, runID, payload, prepared)
+		if err != nil {
+			return err
+		}
+		if err := tx.SendBatch(ctx, batch).Close(); err != nil {
+			return classify("insert run "+runID, err)
+		}
+		return nil
+	})
+	if err != nil {
+		return nil, classify("create run", err)
+	}
+	if replay != nil {
+		return replay, nil
+	}
+	return created, nil
+}
+
+// runBatch queues every row of a new run: the run, its readings (one
+// statement over arrays), its samples, its curves and the audit rows.
+func runBatch(in *RunInput, runID string, payload []byte, curves []preparedCurve) (*pgx.Batch, error) {
+	var operator *string
+	if in.Operator != "" {
+		operator = &in.Operator
+	}
+	b := &pgx.Batch{}
+	b.Queue(sqlInsertRun, runID, in.Method, in.MethodRevision, in.Instrument, in.AcquiredAt, operator,
+		in.Actor, in.SourceFormat, in.RequestHash, payload)
+
+	var (
+		analytes, levels     []string
+		replicates, standard []int32
+		concs, responses     []float64
+	)
+	for i, s := range in.Standards {
+		for k, r := range s.Responses {
+			analytes = append(analytes, s.Analyte)
+			levels = append(levels, s.Level)
+			replicates = append(replicates, int32(k+1))
+			standard = append(standard, int32(i))
+			concs = append(concs, s.Concentration)
+			responses = append(responses, r)
+		}
+	}
+	b.Queue(sqlInsertReadings, runID, analytes, levels, replicates, standard, concs, responses)
+	for i, s := range in.Samples {
+		b.Queue(sqlInsertSample, runID, i, s.ID, s.Analyte, s.Responses, s.Dilution)
+	}
+
+	curveIDs := make([]string, len(curves))
+	for i, c := range curves {
+		curveIDs[i] = c.id
+		unit := c.in.Unit
+		b.Queue(sqlInsertCurve, c.id, runID, in.Method, in.MethodRevision, in.Instrument, c.in.Analyte, unit,
+			c.model, c.weighting, c.verdict, c.engine, c.report, in.AcquiredAt, in.Actor,
+			c.scalars.slope, c.scalars.intercept, c.scalars.residualSD, c.scalars.rSquared, c.scalars.lod)
+	}
+	detail := map[string]any{
+		"method": in.Method, "method_revision": in.MethodRevision, "instrument": in.Instrument,
+		"acquired_at": in.AcquiredAt, "source_format": in.SourceFormat, "standards": len(in.Standards),
+		"readings": len(responses), "samples": len(in.Samples), "curves": curveIDs,
+	}
+	if in.IdempotencyKey != "" {
+		detail["idempotency_key"] = in.IdempotencyKey
+	}
+	if err := queueAudit(b, in.Actor, ActionRunCreate, entityRun, runID, detail); err != nil {
+		return nil, err
+	}
+	for _, c := range curves {
+		if err := queueAudit(b, in.Actor, ActionCurveCreate, entityCurve, c.id, map[string]any{
+			"run_id": runID, "analyte": c.in.Analyte, "verdict": c.verdict, "status": StatusPendingReview,
+			"model": c.model, "weighting": c.weighting, "engine_version": c.engine,
+		}); err != nil {
+			return nil, err
+		}
+	}
+	return b, nil
+}
+
+// Run is a stored run: its readings grouped back into standards in the order
+// received (responses in replicate order), its samples and its curves.
+type Run struct {
+	ID             string
+	Method         string
+	MethodRevision int
+	Instrument     string
+	AcquiredAt     time.Time
+	Operator       string
+	ReceivedAt     time.Time
+	ReceivedBy     string
+	SourceFormat   string
+	Standards      []Standard
+	Samples        []Sample
+	Curves         []CurveRef
+}
+
+// CurveRef names one curve of a run.
+type CurveRef struct {
+	ID         string
+	Analyte    string
+	Verdict    string
+	Status     string
+	RevisionOf string // "" for the run's own fit
+}
+
+// GetRun returns run id as stored.
+func (db *DB) GetRun(ctx context.Context, id string) (*Run, error) {
+	id, err := parseID("run", id)
+	if err != nil {
+		return nil, err
+	}
+	// One snapshot for the four reads; the rows are immutable, but a
+	// repeatable-read transaction also keeps the curve list consistent.
+	var run *Run
+	err = pgx.BeginTxFunc(ctx, db.Pool, pgx.TxOptions{IsoLevel: pgx.RepeatableRead, AccessMode: pgx.ReadOnly}, func(tx pgx.Tx) error {
+		var err error
+		run, err = readRun(ctx, tx, id)
+		return err
+	})
+	if err != nil {
+		return nil, classify("get run "+id, err)
+	}
+	return run, nil
+}
+
+func readRun(ctx context.Context, tx pgx.Tx, id string) (*Run, error) {
+	r := &Run{ID: id, Standards: []Standard{}, Samples: []Sample{}, Curves: []CurveRef{}}
+	var operator *string
+	err := tx.QueryRow(ctx, `
+SELECT method, method_revision, instrument, acquired_at, operator, received_at, received_by, source_format
+FROM runs WHERE id = $1`, id).Scan(&r.Method, &r.MethodRevision, &r.Instrument, &r.AcquiredAt, &operator,
+		&r.ReceivedAt, &r.ReceivedBy, &r.SourceFormat)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return nil, Errorf(KindNotFound, "run %s not found", id)
+	}
+	if err != nil {
+		return nil, classify("select run", err)
+	}
+	if operator != nil {
+		r.Operator = *operator
+	}
+
+	rows, err := tx.Query(ctx, `
+SELECT standard, analyte, level, concentration, response FROM readings
+WHERE run_id = $1 ORDER BY standard, replicate`, id)
+	if err != nil {
+		return nil, classify("select readings", err)
+	}
+	var (
+		standard, last int32 = 0, -1
+		s              Standard
+		response       float64
+	)
+	_, err = pgx.ForEachRow(rows, []any{&standard, &s.Analyte, &s.Level, &s.Concentration, &response}, func() error {
+		if standard != last {
+			r.Standards = append(r.Standards, Standard{Analyte: s.Analyte, Level: s.Level, Concentration: s.Concentration})
+			last = standard
+		}
+		cur := &r.Standards[len(r.Standards)-1]
+		cur.Responses = append(cur.Responses, response)
+		return nil
+	})
+	if err != nil {
+		return nil, classify("scan readings", err)
+	}
+
+	rows, err = tx.Query(ctx, `SELECT sample_id, analyte, responses, dilution FROM run_samples WHERE run_id = $1 ORDER BY position`, id)
+	if err != nil {
+		return nil, classify("select samples", err)
+	}
+	r.Samples, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (Sample, error) {
+		var s Sample
+		err := row.Scan(&s.ID, &s.Analyte, &s.Responses, &s.Dilution)
+		return s, err
+	})
+	if err != nil {
+		return nil, classify("scan samples", err)
+	}
+
+	rows, err = tx.Query(ctx, `SELECT id, analyte, verdict, status, coalesce(revision_of::text, '') FROM curves WHERE run_id = $1 ORDER BY analyte, created_at, id`, id)
+	if err != nil {
+		return nil, classify("select curves of run", err)
+	}
+	r.Curves, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (CurveRef, error) {
+		var c CurveRef
+		err := row.Scan(&c.ID, &c.Analyte, &c.Verdict, &c.Status, &c.RevisionOf)
+		return c, err
+	})
+	if err != nil {
+		return nil, classify("scan curves of run", err)
+	}
+	return r, nil
+}

@@ -1,0 +1,214 @@
+package store
+
+import (
+	"context"
+	"crypto/rand"
+	"crypto/sha256"
+	"crypto/subtle"
+	"encoding/base64"
+	"errors"
+	"fmt"
+	"slices"
+	"strings"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+)
+
+// Scopes a token can carry. Admin implies every other scope.
+const (
+	ScopeRunsWrite    = "runs:write"    // instruments posting runs
+	ScopeResultsRead  = "results:read"  // LIMS reading curves and predictions
+	ScopeCurvesReview = "curves:review" // QA staff reviewing curves
+	ScopeAdmin        = "admin"         // everything, plus methods and tokens
+)
+
+// Scopes lists every scope, in a fixed order.
+var Scopes = []string{ScopeRunsWrite, ScopeResultsRead, ScopeCurvesReview, ScopeAdmin}
+
+const (
+	// TokenPrefix starts every secret CreateToken issues, so that a leaked
+	// token is recognisable (for example by secret scanners).
+	TokenPrefix = "ck_"
+	// tokenBytes is the secret's entropy: 256 bits from crypto/rand.
+	tokenBytes = 32
+	// minSecretLen is the shortest secret EnsureToken accepts: 22 base64
+	// characters carry 132 bits.
+	minSecretLen = 22
+)
+
+// Token is an API token as the service sees it; its secret is never stored.
+type Token struct {
+	ID     string
+	Name   string
+	Scopes []string
+}
+
+// HasScope reports whether the token grants scope (admin grants every scope).
+func (t Token) HasScope(scope string) bool {
+	return slices.Contains(t.Scopes, scope) || slices.Contains(t.Scopes, ScopeAdmin)
+}
+
+// hashSecret is the stored form of a secret: its SHA-256.
+func hashSecret(secret string) []byte {
+	h := sha256.Sum256([]byte(secret))
+	return h[:]
+}
+
+// newSecret returns a fresh secret: TokenPrefix and 32 random bytes, base64url.
+func newSecret() (string, error) {
+	b := make([]byte, tokenBytes)
+	if _, err := rand.Read(b); err != nil {
+		return "", fmt.Errorf("store: token secret: %w", err)
+	}
+	return TokenPrefix + base64.RawURLEncoding.EncodeToString(b), nil
+}
+
+// checkToken validates a token's name and scopes and returns the scopes
+// deduplicated in the order of Scopes.
+func checkToken(name string, scopes []string) ([]string, error) {
+	if strings.TrimSpace(name) == "" || len(name) > 200 {
+		return nil, FieldError("/name", "name must be 1 to 200 characters")
+	}
+	if len(scopes) == 0 {
+		return nil, FieldError("/scopes", "at least one scope is required")
+	}
+	for i, s := range scopes {
+		if !slices.Contains(Scopes, s) {
+			return nil, FieldError(fmt.Sprintf("/scopes/%d", i), "unknown scope %q (one of %s)", s, strings.Join(Scopes, ", "))
+		}
+	}
+	var out []string
+	for _, s := range Scopes {
+		if slices.Contains(scopes, s) {
+			out = append(out, s)
+		}
+	}
+	return out, nil
+}
+
+// CreateToken issues a token with the given name and scopes and returns its id
+// and its secret. The secret is returned only here; the database keeps its
+// SHA-256. The creation is audited under actor.
+func (db *DB) CreateToken(ctx context.Context, name string, scopes []string, actor string) (id, secret string, err error) {
+	scopes, err = checkToken(name, scopes)
+	if err != nil {
+		return "", "", err
+	}
+	if id, err = newID(); err != nil {
+		return "", "", err
+	}
+	if secret, err = newSecret(); err != nil {
+		return "", "", err
+	}
+	err = db.inTx(ctx, func(tx pgx.Tx) error {
+		_, err := tx.Exec(ctx, `INSERT INTO tokens (id, name, scopes, hash, created_by) VALUES ($1, $2, $3, $4, $5)`,
+			id, name, scopes, hashSecret(secret), actor)
+		if err != nil {
+			return classify("insert token", err)
+		}
+		return writeAudit(ctx, tx, actor, ActionTokenCreate, entityToken, id,
+			map[string]any{"name": name, "scopes": scopes})
+	})
+	if err != nil {
+		return "", "", classify("create token", err)
+	}
+	return id, secret, nil
+}
+
+// EnsureToken stores secret as a token with the given name and scopes unless a
+// token with that secret exists already (revoked or not: a revoked bootstrap
+// token stays revoked). It returns the token's id and whether it was created.
+// It is meant for the bootstrap admin token given to the service at start, so
+// the secret must be at least 22 characters long.
+func (db *DB) EnsureToken(ctx context.Context, name, secret string, scopes []string) (id string, created bool, err error) {
+	if len(secret) < minSecretLen {
+		return "", false, Errorf(KindInvalid, "a token secret must be at least %d characters long", minSecretLen)
+	}
+	scopes, err = checkToken(name, scopes)
+	if err != nil {
+		return "", false, err
+	}
+	newTokenID, err := newID()
+	if err != nil {
+		return "", false, err
+	}
+	hash := hashSecret(secret)
+	err = db.inTx(ctx, func(tx pgx.Tx) error {
+		created = false
+		err := tx.QueryRow(ctx, `
+INSERT INTO tokens (id, name, scopes, hash, created_by) VALUES ($1, $2, $3, $4, 'bootstrap')
+ON CONFLICT (hash) DO NOTHING
+RETURNING id`, newTokenID, name, scopes, hash).Scan(&id)
+		if errors.Is(err, pgx.ErrNoRows) {
+			err = tx.QueryRow(ctx, `SELECT id FROM tokens WHERE hash = $1`, hash).Scan(&id)
+			return classify("select bootstrap token", err)
+		}
+		if err != nil {
+			return classify("insert bootstrap token", err)
+		}
+		created = true
+		return writeAudit(ctx, tx, "bootstrap", ActionTokenBootstrap, entityToken, id,
+			map[string]any{"name": name, "scopes": scopes})
+	})
+	if err != nil {
+		return "", false, classify("ensure token", err)
+	}
+	return id, created, nil
+}
+
+// LookupToken returns the live token whose secret is secret. An unknown or
+// revoked secret is a KindNotFound error (the api answers 401 for both).
+func (db *DB) LookupToken(ctx context.Context, secret string) (Token, error) {
+	hash := hashSecret(secret)
+	var (
+		t         Token
+		stored    []byte
+		revokedAt *time.Time
+	)
+	err := db.Pool.QueryRow(ctx, `SELECT id, name, scopes, hash, revoked_at FROM tokens WHERE hash = $1`, hash).
+		Scan(&t.ID, &t.Name, &t.Scopes, &stored, &revokedAt)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return Token{}, Errorf(KindNotFound, "unknown token")
+	}
+	if err != nil {
+		return Token{}, classify("look up token", err)
+	}
+	// The index found the row by hash; comparing the hashes again in
+	// constant time keeps the decision itself free of timing differences.
+	if subtle.ConstantTimeCompare(stored, hash) != 1 {
+		return Token{}, Errorf(KindNotFound, "unknown token")
+	}
+	if revokedAt != nil {
+		return Token{}, Errorf(KindNotFound, "token revoked")
+	}
+	return t, nil
+}
+
+// RevokeToken revokes token id; the next LookupToken refuses it. Revoking a
+// revoked token changes nothing and succeeds; an unknown id is KindNotFound.
+func (db *DB) RevokeToken(ctx context.Context, id, actor string) error {
+	id, err := parseID("token", id)
+	if err != nil {
+		return err
+	}
+	err = db.inTx(ctx, func(tx pgx.Tx) error {
+		var name string
+		var revokedAt *time.Time
+		err := tx.QueryRow(ctx, `SELECT name, revoked_at FROM tokens WHERE id = $1 FOR UPDATE`, id).Scan(&name, &revokedAt)
+		if errors.Is(err, pgx.ErrNoRows) {
+			return Errorf(KindNotFound, "token %s not found", id)
+		}
+		if err != nil {
+			return classify("select token", err)
+		}
+		if revokedAt != nil {
+			return nil
+		}
+		if _, err := tx.Exec(ctx, `UPDATE tokens SET revoked_at = now(), revoked_by = $2 WHERE id = $1`, id, actor); err != nil {
+			return classify("revoke token", err)
+		}
+		return writeAudit(ctx, tx, actor, ActionTokenRevoke, entityToken, id, map[string]any{"name": name})
+	})
+	return classify("revoke token "+id, err)
+}
