@@ -57,14 +57,14 @@ const (
 
 // Prediction flags.
 const (
-	FlagBelowRange   = "below_range"       // below the lowest accepted standard
-	FlagAboveRange   = "above_range"       // above the highest accepted standard (extrapolation)
-	FlagBelowLOD     = "below_lod"         // below the ICH Q2 detection limit
-	FlagBelowLOQ     = "below_loq"         // below the ICH Q2 quantification limit
-	FlagNegative     = "negative"          // negative point estimate
-	FlagNoRoot       = "no_root_in_range"  // quadratic: no root inside the calibrated range
+	FlagBelowRange   = "below_range"        // below the lowest accepted standard
+	FlagAboveRange   = "above_range"        // above the highest accepted standard (extrapolation)
+	FlagBelowLOD     = "below_lod"          // below the ICH Q2 detection limit
+	FlagBelowLOQ     = "below_loq"          // below the ICH Q2 quantification limit
+	FlagNegative     = "negative"           // negative point estimate
+	FlagNoRoot       = "no_root_in_range"   // quadratic: no root inside the calibrated range
 	FlagUnbounded    = "unbounded_interval" // Fieller g ≥ 1 or band does not close: no finite interval
-	FlagExtrapolated = "extrapolated"      // set together with below_range or above_range
+	FlagExtrapolated = "extrapolated"       // set together with below_range or above_range
 )
 
 // Point is one reading of a calibration standard: every replicate reading is
@@ -87,19 +87,19 @@ type Options struct {
 // Policy holds every acceptance threshold. DefaultPolicy documents the
 // default of each and its source; the laboratory's method overrides them.
 type Policy struct {
-	MinLevels              int     // minimum number of distinct non-excluded levels
-	MandelAlpha            float64 // Mandel fitting test significance (ISO 8466-1: 0.01)
-	LackOfFitAlpha         float64 // lack-of-fit F-test significance
-	HomoscedasticityAlpha  float64 // ISO 8466-1 variance test significance (0.01)
-	BackCalcTolerancePct   float64 // |%RE| allowed for back-calculated standards (ICH M10: 15)
+	MinLevels               int     // minimum number of distinct non-excluded levels
+	MandelAlpha             float64 // Mandel fitting test significance (ISO 8466-1: 0.01)
+	LackOfFitAlpha          float64 // lack-of-fit F-test significance
+	HomoscedasticityAlpha   float64 // ISO 8466-1 variance test significance (0.01)
+	BackCalcTolerancePct    float64 // |%RE| allowed for back-calculated standards (ICH M10: 15)
 	BackCalcLowTolerancePct float64 // |%RE| allowed at the lowest level (ICH M10: 20)
 	BackCalcMinPassFraction float64 // fraction of standards that must pass (ICH M10: 0.75)
-	MinRSquared            float64 // (US EPA SW-846 8000D: 0.99)
-	MaxRSEPct              float64 // relative standard error (US EPA SW-846 8000D: 20)
-	InterceptAlpha         float64 // significance of the intercept t-test
-	RunsAlpha              float64 // residual sign runs test significance
-	OutlierStudentized     float64 // |internally studentised residual| above which a reading is an outlier (3)
-	OutlierCooksD          float64 // Cook's distance above which a reading is influential (1)
+	MinRSquared             float64 // (US EPA SW-846 8000D: 0.99)
+	MaxRSEPct               float64 // relative standard error (US EPA SW-846 8000D: 20)
+	InterceptAlpha          float64 // significance of the intercept t-test
+	RunsAlpha               float64 // residual sign runs test significance
+	OutlierStudentized      float64 // |internally studentised residual| above which a reading is an outlier (3)
+	OutlierCooksD           float64 // Cook's distance above which a reading is influential (1)
 	// Mandatory lists the checks (by name) whose failure fails the verdict.
 	// A check not listed is advisory.
 	Mandatory []string
@@ -115,6 +115,14 @@ type Report struct {
 	WeightCandidates   []WeightScore // with Auto: every candidate's score, so the choice is explained
 	WeightConvention   string        // e.g. "weights normalised to sum to n = 16 before residual_sd"
 	ZeroHandling       string        // how zero x or y were kept from producing infinite weights
+	// WeightScale turns the scheme's raw weight of a reading into its weight on
+	// the Σw = n scale: w = WeightScale·raw. Raw weights are taken relative to
+	// WeightFloor, e.g. (WeightFloor/max(|x|, WeightFloor))² for 1/x².
+	WeightScale float64
+	// WeightFloor is the smallest non-zero |x| (1/x, 1/x²), |y| (1/y, 1/y²)
+	// or level SD (1/s²) among the fitted standards; a smaller value, zero
+	// included, is weighted as the floor. 0 for unweighted fits.
+	WeightFloor float64
 
 	Coefficients   []float64   // in model-equation order
 	StandardErrors []float64   // same order
@@ -127,17 +135,17 @@ type Report struct {
 	Confidence     float64
 
 	// Sufficient statistics for inverse prediction (Σw = n scale).
-	SumW     float64 // Σw (= N)
-	MeanXW   float64 // x̄w
-	MeanYW   float64 // ȳw
-	SxxW     float64 // Σw(x − x̄w)²
-	SumWX2   float64 // Σw·x² (for the origin model)
+	SumW     float64       // Σw (= N)
+	MeanXW   float64       // x̄w
+	MeanYW   float64       // ȳw
+	SxxW     float64       // Σw(x − x̄w)²
+	SumWX2   float64       // Σw·x² (for the origin model)
 	Variance VarianceModel // for 1/s²: s(x) model giving an unknown's weight
 
-	Points []PointResult
-	Checks []Check
-	Limits Limits
-	Range  Range
+	Points   []PointResult
+	Checks   []Check
+	Limits   Limits
+	Range    Range
 	Verdict  string // "pass" or "fail", from the checks the policy makes mandatory
 	Cautions []string
 	Engine   string // EngineVersion
@@ -157,6 +165,9 @@ type VarianceModel struct {
 	Kind string // "" when unused, else e.g. "linear_sd"
 	C0   float64
 	C1   float64
+	// Floor is the smallest non-zero level SD; s(x) below it (or negative)
+	// is replaced by it, so an unknown's weight is always finite.
+	Floor float64
 }
 
 // PointResult is one reading with its diagnostics.
@@ -218,6 +229,7 @@ type Prediction struct {
 	Readings      int
 	MeanResponse  float64
 	Dilution      float64
+	Cautions      []string // the same cautions as every Report (see Cautions)
 }
 
 // Interval is a confidence interval. When Bounded is false Low and High are 0

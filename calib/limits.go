@@ -1,0 +1,58 @@
+package calib
+
+import "math"
+
+// computeLimits returns the detection and quantification limits of the fit.
+//
+// ICH Q2(R2): LOD = 3.3·σ/S, LOQ = 10·σ/S, σ = the residual SD s(y/x) and S
+// the slope; for the quadratic, S is the sensitivity b1 + 2·b2·x at the
+// lowest fitted standard.
+//
+// ISO 11843-2 (constant SD; DIN 32645): for K = 1 reading of the unknown,
+// R = √[1/K + Var(b0)/s²] (for the line Var(b0)/s² = 1/Σw + x̄w²/Sxx,w, i.e.
+// ISO's 1/(IJ) + x̄²/(J·Sxx)), y_c = b0 + t(0.95; df)·s·R,
+// x_c = t(0.95; df)·s·R/|S|, x_d ≈ 2·x_c (α = β = 0.05). For the origin
+// model the blank response is 0 without uncertainty, so R = √(1/K).
+//
+// Preconditions: S ≠ 0. With weighting, s is the SD of a reading of unit
+// weight on the Σw = n scale and the constant-SD form of ISO 11843-2 is then
+// an approximation; the Detail says so.
+func computeLimits(r *Report, f lsq) Limits {
+	c := r.Coefficients
+	var b0, slope float64
+	switch r.Model {
+	case LinearOrigin:
+		slope = c[0]
+	case Quadratic:
+		b0, slope = c[0], c[1]+2*c[2]*r.Range.Low
+	default:
+		b0, slope = c[0], c[1]
+	}
+	if slope == 0 || math.IsNaN(slope) || math.IsInf(slope, 0) {
+		return Limits{Detail: "not computed: the sensitivity at the lowest standard is zero"}
+	}
+	s, as := r.ResidualSD, math.Abs(slope)
+	l := Limits{Computed: true, LOD: 3.3 * s / as, LOQ: 10 * s / as}
+	rr := 1.0
+	if r.Model != LinearOrigin {
+		rr = math.Sqrt(1 + f.xtwx[0])
+	}
+	t := studentT(0.95, r.DF)
+	l.CriticalValue = b0 + math.Copysign(t*s*rr, slope)
+	l.CriticalConc = t * s * rr / as
+	l.DetectionLimit = 2 * l.CriticalConc
+	l.Detail = "LOD = 3.3·σ/S and LOQ = 10·σ/S (ICH Q2(R2)) with σ = residual SD " + fmtG(s) + " and S = " + fmtG(slope)
+	if r.Model == Quadratic {
+		l.Detail += " (the quadratic's sensitivity b1 + 2·b2·x at the lowest standard x = " + fmtG(r.Range.Low) + ")"
+	}
+	l.Detail += ". Critical value y_c, x_c and minimum detectable x_d ≈ 2·x_c by ISO 11843-2 for one reading of the unknown, α = β = 0.05, t(0.95; " +
+		itoa(r.DF) + ") = " + fmtG(t) + ", assuming a constant response SD"
+	if r.Weighting != WeightNone {
+		l.Detail += "; with " + string(r.Weighting) + " weighting σ is the SD of a reading of unit weight on the Σw = n scale, so these limits are approximations"
+	}
+	if r.Model == LinearOrigin {
+		l.Detail += "; the origin model takes the blank response as exactly 0"
+	}
+	l.Detail += "."
+	return l
+}

@@ -1,0 +1,290 @@
+package calib
+
+import (
+	"math"
+	"strconv"
+)
+
+// cautions are carried by every Report and every Prediction.
+var cautions = []string{
+	"Acceptance is computed against the configured criteria; unless the laboratory configured its own, these are defaults drawn from published guidance (ICH M10, ICH Q2(R2), ISO 8466-1, ISO 11843-2, US EPA SW-846 Method 8000D).",
+	"The laboratory's accreditation, its regulator and its method SOP take precedence over these criteria and over any result computed here.",
+	"Results need review by a qualified person before they are released.",
+}
+
+// Cautions returns the cautions that accompany every fit and every reported
+// concentration. The slice is a fresh copy.
+func Cautions() []string {
+	return append([]string(nil), cautions...)
+}
+
+// build fits the dataset with the given raw weights (normalised here to
+// Σw = n) and assembles the full Report: coefficients, diagnostics, checks,
+// limits and verdict. planRaw are the raw weights the plan itself gives the
+// same readings; the ratio of the normalised weights to them is WeightScale,
+// which turns the plan's raw weight of an unknown into w0.
+func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw []float64, scores []WeightScore) (*Report, error) {
+	ratio := raw[0] / planRaw[0] // raw and planRaw may be the same slice
+	w := raw
+	wscale := normalise(w) * ratio
+	f, err := solveLSQ(opt.Model, d.x, d.y, w)
+	if err != nil {
+		return nil, err
+	}
+	n, p := len(d.x), f.p
+	r := &Report{
+		Model:              opt.Model,
+		Weighting:          wp.scheme,
+		WeightingRequested: opt.Weighting,
+		WeightCandidates:   scores,
+		WeightConvention: "weights normalised to sum to n = " + strconv.Itoa(n) +
+			" (Σw = n) before residual_sd is computed (Miller & Miller §5.10); an unknown's weight w0 is the scheme's raw weight times weight_scale, on the same scale",
+		ZeroHandling: wp.zero,
+		WeightScale:  wscale,
+		WeightFloor:  wp.floor,
+		Variance:     wp.vm,
+		ResidualSD:   f.s,
+		DF:           f.df,
+		RSquared:     f.r2,
+		N:            n,
+		Levels:       len(d.levels),
+		Confidence:   opt.Confidence,
+		Range:        Range{Low: d.levels[0].x, High: d.levels[len(d.levels)-1].x},
+		Cautions:     Cautions(),
+		Engine:       EngineVersion,
+	}
+	r.Coefficients = f.beta
+	r.StandardErrors = make([]float64, p)
+	r.Covariance = make([][]float64, p)
+	covBuf := make([]float64, p*p)
+	s2 := f.s * f.s
+	for j := 0; j < p; j++ {
+		r.Covariance[j] = covBuf[j*p : (j+1)*p : (j+1)*p]
+		for k := 0; k < p; k++ {
+			r.Covariance[j][k] = s2 * f.xtwx[j*p+k]
+		}
+		r.StandardErrors[j] = math.Sqrt(r.Covariance[j][j])
+	}
+	var sw, swx, swy, swx2 float64
+	for i := range d.x {
+		sw += w[i]
+		swx += w[i] * d.x[i]
+		swy += w[i] * d.y[i]
+		swx2 += w[i] * d.x[i] * d.x[i]
+	}
+	r.SumW, r.MeanXW, r.MeanYW, r.SumWX2 = sw, swx/sw, swy/sw, swx2
+	for i := range d.x {
+		dx := d.x[i] - r.MeanXW
+		r.SxxW += w[i] * dx * dx
+	}
+
+	r.Points = make([]PointResult, len(points))
+	var v [3]float64
+	for i, pt := range points {
+		pr := &r.Points[i]
+		pr.Level, pr.X, pr.Y, pr.Excluded = pt.Level, pt.X, pt.Y, pt.Excluded
+		basis(r.Model, pt.X, v[:])
+		for j := 0; j < p; j++ {
+			pr.Fitted += r.Coefficients[j] * v[j]
+		}
+		pr.Residual = pt.Y - pr.Fitted
+		r.backCalc(pr)
+	}
+	for k, i := range d.idx {
+		pr := &r.Points[i]
+		pr.Weight = w[k]
+		pr.Fitted, pr.Residual = f.fitted[k], f.resid[k]
+		pr.WeightedResidual = math.Sqrt(w[k]) * f.resid[k]
+		pr.Leverage = f.lev[k]
+		if f.s > 0 && 1-f.lev[k] > 1e-10 {
+			pr.Studentized = pr.WeightedResidual / (f.s * math.Sqrt(1-f.lev[k]))
+			pr.CooksDistance = pr.Studentized * pr.Studentized * f.lev[k] / (float64(p) * (1 - f.lev[k]))
+		}
+	}
+	r.Limits = computeLimits(r, f)
+	r.Checks = computeChecks(r, d, f, w, opt.Policy)
+	r.Verdict = verdict(r.Checks)
+	if !r.finite() {
+		return nil, inputErr("points", "values are outside the numerically usable range")
+	}
+	return r, nil
+}
+
+// backCalc reads a point's concentration back from the curve and sets its
+// %RE = 100·(x_back − x_nominal)/x_nominal (none for nominal 0).
+func (r *Report) backCalc(pr *PointResult) {
+	xb, _, ok := invertCurve(r.Model, r.Coefficients, r.Range.Low, r.Range.High, pr.Y)
+	if !ok {
+		return
+	}
+	pr.BackCalculated, pr.HasBackCalc = xb, true
+	if pr.X != 0 {
+		pr.RelativeErrorPct = 100 * (xb - pr.X) / pr.X
+		pr.HasRelativeError = true
+	}
+}
+
+// verdict is "fail" if any mandatory check failed or could not be computed.
+func verdict(checks []Check) string {
+	for _, c := range checks {
+		if c.Mandatory && !c.Passed {
+			return "fail"
+		}
+	}
+	return "pass"
+}
+
+// FailedReport builds the Report of a run whose readings are valid numbers
+// but which cannot be fitted (one level, all responses equal, too few
+// levels or readings): Verdict "fail", the points listed without fitted
+// values, min_levels computed from the points, every other check
+// Computed = false with a Detail naming cause, the cautions, and no NaN or
+// Inf anywhere (a non-finite reading is listed as 0 and said so). The service
+// stores it with the raw data as evidence of the run.
+func FailedReport(points []Point, opt Options, cause error) *Report {
+	if ro, err := resolveOptions(opt); err == nil {
+		opt = ro
+	} else {
+		if opt.Model == "" {
+			opt.Model = Linear
+		}
+		if opt.Weighting == "" {
+			opt.Weighting = WeightNone
+		}
+		if !(opt.Confidence > 0 && opt.Confidence < 1) {
+			opt.Confidence = 0.95
+		}
+		if opt.Policy.validate() != nil {
+			opt.Policy = DefaultPolicy()
+		}
+	}
+	why := "the run could not be fitted"
+	if cause != nil {
+		why += ": " + cause.Error()
+	}
+	r := &Report{
+		Model:              opt.Model,
+		Weighting:          opt.Weighting,
+		WeightingRequested: opt.Weighting,
+		WeightConvention:   "no fit: no weights were computed",
+		ZeroHandling:       "no fit: not applicable",
+		Confidence:         opt.Confidence,
+		Verdict:            "fail",
+		Cautions:           Cautions(),
+		Engine:             EngineVersion,
+		Limits:             Limits{Detail: "not computed: " + why},
+	}
+	r.Points = make([]PointResult, len(points))
+	lo, hi, have := 0.0, 0.0, false
+	nonFinite := 0
+	var xs []float64
+	for i, pt := range points {
+		x, y := pt.X, pt.Y
+		if math.IsNaN(x) || math.IsInf(x, 0) {
+			x, nonFinite = 0, nonFinite+1
+		}
+		if math.IsNaN(y) || math.IsInf(y, 0) {
+			y, nonFinite = 0, nonFinite+1
+		}
+		r.Points[i] = PointResult{Level: pt.Level, X: x, Y: y, Excluded: pt.Excluded}
+		if pt.Excluded || x != pt.X {
+			continue
+		}
+		r.N++
+		if !have || x < lo {
+			lo = x
+		}
+		if !have || x > hi {
+			hi = x
+		}
+		have = true
+		seen := false
+		for _, v := range xs {
+			if v == x {
+				seen = true
+				break
+			}
+		}
+		if !seen {
+			xs = append(xs, x)
+		}
+	}
+	r.Levels = len(xs)
+	r.Range = Range{Low: lo, High: hi}
+	if nonFinite > 0 {
+		why += " (" + strconv.Itoa(nonFinite) + " non-finite value(s) are listed as 0)"
+	}
+	for _, name := range checkNames {
+		c := Check{Name: name, Source: checkSource(name, opt.Model), Mandatory: opt.Policy.mandatory(name)}
+		if name == CheckMinLevels {
+			c = minLevelsCheck(xs, opt.Policy)
+			c.Mandatory = opt.Policy.mandatory(name)
+		} else {
+			c.Detail = "Not computed: " + why + "."
+		}
+		if c.Mandatory && !c.Passed && !c.Computed {
+			c.Detail += mandatoryNote
+		}
+		r.Checks = append(r.Checks, c)
+	}
+	return r
+}
+
+// finite reports whether every float in the report is finite.
+func (r *Report) finite() bool {
+	ok := func(v ...float64) bool {
+		for _, x := range v {
+			if math.IsNaN(x) || math.IsInf(x, 0) {
+				return false
+			}
+		}
+		return true
+	}
+	if !ok(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
+		r.WeightScale, r.WeightFloor, r.Variance.C0, r.Variance.C1, r.Variance.Floor,
+		r.Limits.LOD, r.Limits.LOQ, r.Limits.CriticalValue, r.Limits.CriticalConc, r.Limits.DetectionLimit,
+		r.Range.Low, r.Range.High) {
+		return false
+	}
+	if !ok(r.Coefficients...) || !ok(r.StandardErrors...) {
+		return false
+	}
+	for _, row := range r.Covariance {
+		if !ok(row...) {
+			return false
+		}
+	}
+	for _, c := range r.WeightCandidates {
+		if !ok(c.SumAbsRE) {
+			return false
+		}
+	}
+	for i := range r.Points {
+		p := &r.Points[i]
+		if !ok(p.X, p.Y, p.Weight, p.Fitted, p.Residual, p.WeightedResidual, p.Leverage,
+			p.Studentized, p.CooksDistance, p.BackCalculated, p.RelativeErrorPct) {
+			return false
+		}
+	}
+	for _, c := range r.Checks {
+		if !ok(c.Statistic, c.Limit) {
+			return false
+		}
+	}
+	return true
+}
+
+// fmtG formats v with six significant digits for Detail texts.
+func fmtG(v float64) string {
+	return strconv.FormatFloat(v, 'g', 6, 64)
+}
+
+// fmtG10 formats v with ten significant digits.
+func fmtG10(v float64) string {
+	return strconv.FormatFloat(v, 'g', 10, 64)
+}
+
+// itoa formats an integer for Detail texts.
+func itoa(i int) string {
+	return strconv.Itoa(i)
+}
