@@ -290,8 +290,6 @@ type Alpha = float64
 // Analyte defines model for Analyte.
 type Analyte struct {
 	// Name A name of an instrument, analyte, method, level or sample.
-	//
-	// Example: nitrate
 	Name Identifier `json:"name"`
 
 	// Unit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
@@ -545,8 +543,6 @@ type Health struct {
 type HealthStatus string
 
 // Identifier A name of an instrument, analyte, method, level or sample.
-//
-// Example: nitrate
 type Identifier = string
 
 // Interval Confidence interval of the concentration. When `bounded` is false, `low` and `high` are null.
@@ -629,8 +625,6 @@ type MethodRequest struct {
 	Model Model `json:"model"`
 
 	// Name A name of an instrument, analyte, method, level or sample.
-	//
-	// Example: nitrate
 	Name Identifier `json:"name"`
 
 	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
@@ -708,8 +702,6 @@ type PredictionSample struct {
 	Dilution *Dilution `json:"dilution,omitempty"`
 
 	// ID A name of an instrument, analyte, method, level or sample.
-	//
-	// Example: nitrate
 	ID Identifier `json:"id"`
 
 	// Responses Replicate readings, in acquisition order.
@@ -806,13 +798,9 @@ type Run struct {
 	ID     UUID      `json:"id"`
 
 	// Instrument A name of an instrument, analyte, method, level or sample.
-	//
-	// Example: nitrate
 	Instrument Identifier `json:"instrument"`
 
 	// Method A name of an instrument, analyte, method, level or sample.
-	//
-	// Example: nitrate
 	Method         Identifier `json:"method"`
 	MethodRevision int        `json:"method_revision"`
 
@@ -841,8 +829,6 @@ type RunCreated struct {
 // RunCurve defines model for RunCurve.
 type RunCurve struct {
 	// Analyte A name of an instrument, analyte, method, level or sample.
-	//
-	// Example: nitrate
 	Analyte Identifier `json:"analyte"`
 	ID      UUID       `json:"id"`
 
@@ -858,13 +844,9 @@ type RunRequest struct {
 	AcquiredAt time.Time `json:"acquired_at"`
 
 	// Instrument A name of an instrument, analyte, method, level or sample.
-	//
-	// Example: nitrate
 	Instrument Identifier `json:"instrument"`
 
 	// Method A name of an instrument, analyte, method, level or sample.
-	//
-	// Example: nitrate
 	Method Identifier `json:"method"`
 
 	// Operator Who ran the instrument; an identifier that may also hold `@`.
@@ -888,16 +870,12 @@ type RunSample struct {
 // RunSampleInput defines model for RunSampleInput.
 type RunSampleInput struct {
 	// Analyte A name of an instrument, analyte, method, level or sample.
-	//
-	// Example: nitrate
 	Analyte Identifier `json:"analyte"`
 
 	// Dilution Dilution factor applied after inversion (reported = curve value × dilution); 1 when absent.
 	Dilution *Dilution `json:"dilution,omitempty"`
 
 	// ID A name of an instrument, analyte, method, level or sample.
-	//
-	// Example: nitrate
 	ID Identifier `json:"id"`
 
 	// Responses Replicate readings, in acquisition order.
@@ -918,16 +896,12 @@ type Standard struct {
 // StandardInput defines model for StandardInput.
 type StandardInput struct {
 	// Analyte A name of an instrument, analyte, method, level or sample.
-	//
-	// Example: nitrate
 	Analyte Identifier `json:"analyte"`
 
 	// Concentration A nominal concentration, in the analyte's unit.
 	Concentration Concentration `json:"concentration"`
 
 	// Level A name of an instrument, analyte, method, level or sample.
-	//
-	// Example: nitrate
 	Level Identifier `json:"level"`
 
 	// Responses Replicate readings, in acquisition order.
@@ -4601,222 +4575,223 @@ func (sh *strictHandler) DeleteToken(ctx echo.Context, id UUID) error {
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7H3bchtJltivpDHraFJTAAGK6mmRMRHLoaRt7ui2pNQ964aGlahKADksZEKVWQQxLTns8Iv31S/+gLV/",
-	"YCMcEw6/td/X3+D5Esc5J7MqCyiAAEVqehyaiGkRQFVeTua5335sJXoy1Uooa1qHP7bGgqcixz/PhM3n",
-	"x0MrcviUCpPkcmqlVq3D1rlItEoNs5rNuLRsIIY6FyyHV6QadVpRKxfvC5mLtHVo80JELZOMxYTDUBOp",
-	"5KSYtA67UcvOp6J12JLKipHIWx8/foxaU57zibBuGSdFfiVOnyyv4c1YsAR+/MowmcKUEr6ecjtuRS3F",
-	"JzhwunYpf5OLYeuw9Yu9Cgp79KvZe/v29EkL1nOaislUW6GS+W/FfHkhxyzJpFC2nYy1EYpdijnb4Qze",
-	"Z9IwzkZapywZa5mIXWbH3LIJvxTwCwBMirSvYInCWGb4UBwxIwSzY8H0VOQcZvnKsGDOTl/53dJ5VfsN",
-	"1tqGxdbgzq+fCzWy49Zhb/+bCM6h/AxQt1bkMObvfzhu/zve/mO3/bhzcdh+92Mv6u1/8/FvWuVxGZtL",
-	"NULgnBVq1eHkhbrfo/kI75upVkbgVfkNT88IjvAp0coKhX/y6TSTCUJyb5rrQSYmv/yDgYX+uOGMr+kt",
-	"mrS+1Rc8G+p8IlJm5sry64jNcq1GDGDFdM44u+JZIZgurJEpHSwNe8gm/t2++vvzVy8jxhnBls3GIheM",
-	"M1VMBiJnA5FpNTIR44oV6lLpmWJDKbIUXnFHx3TeVzlXI8GupM64Ffjr+0Lkc1YiFV3AVAvDlLYMQDOH",
-	"C/Uxap1oNcxk8lmhhxdFGF3kCSCysdwKNtT5QAJ5wR8JM3Y4YTvLxZUUM5EynuWCp/OI8b6in2bSjnVh",
-	"GWdDaSPEL3oZfiDA84lgskISRFZjZZYxqfqw/dHY7jp4PMNlpEJ9boBYfSkUy3hyaZi4guMziZ4Klklj",
-	"RcqkYvF126NOG38zcQeWfKrgJvDsaZ7r/HMu20/MBMzcYbCNgU7nzPC5YVplc9ZHMl891G8xrtLaIQOx",
-	"+Bi1Xmr7TBcq/dxwB8qUltexQhJxLY3Flb3m80zz9I3Wz3k+Ep97gQhRcZ0I4bDDiPxK5F8Zlmg1lKMi",
-	"FynL5ETSas9FfiUT8VbxKy4zPsg++4JTbvmAG8ESrgCSAzhrnoxFypSeRUAf/TZkIoBdmnFhLVDAVM8U",
-	"sI5FkaRdyiRN63JP7wXSCy7tjdYvuJo7/mD+Ihj9lSkveg5kThqmr0TOpDX+0O5qu28VL+xY5/KP4rNi",
-	"0QtpjFSjqOJsUcmvdA60W1+KlA0Ez4EVAVQWNv3999+3jws7FsrCKsWybBH/Bt+OiapzxWIkJzHj1uZy",
-	"UFjBds6enbCvf/Wou7teFF2UZwh001wnwhjAl6fKSjv/nBD8XmRZ2wkUUk0LSwx7kAt+iSJjkQmmhyHa",
-	"HDkImBgpmGGAYX2lh0OhUkAllBQqYltkwnG4t8oU06nOrUhfiFTyNwiPz839ESW+MuyEZm3DKgA5gGBo",
-	"tSAKM54kYmpNB8VPNwcs4Ri/5yoRpwA2XHuaSniHZ69zGMBKEBSHPDNicSXV28yOc2HGOkvNEUIS15CJ",
-	"oQURjlkU3WFJQo2kEiiaD3mRWbZjxiSXZRlxaa3wwYmwY53iVZwG6/ixNeDJ5UXCs+Qi07MLqzORwwou",
-	"piSDieskK4y8Ei+8xkT3F24Ht63DVqoLoOkRiPb0QK/bjZoULBIj4cirOSdSXUy5MRfDnCcEhh/Xjr3x",
-	"yJ9nJ2M90SYRKTdWJtLOL3g2Hd94G4/xoY8RCSNw6Fu+B2LZhR5eDOW2b064SrnVeYMOeTIWIOzNQINk",
-	"Qy6zIqd/6apdiTyViT0iVLBjkRvGQT9Ir6TR+RxVLCsm5qa14DwvQQHD9Vyf0ku9Cr48zznojYWS7wvh",
-	"fofTchsQ2da7vr7Izf1eBbjKmbgSmXGKLj36KHxvf9naQC/mF+Z9wXNilJ9w/3VhMynyi0TrS3OR3ttm",
-	"/TzGFilwScfi72WuvFBmq/P+WA6iB38QiYVBKtr6WmcymW9Jmp+iBlRSZSCsQ50nIvKE11Qkd2sauwyd",
-	"T6eY21DGDd5eTec2eLmBym3wViON2+C9GoXbniDVSFADvdloBTVqs8kbNdpxKxKxCSnY4q0FxN7gzTqa",
-	"3vjCx1Am/iGEwALMm27Cygu5+p5Ha7FwPYYtHkD9iJcveA0YzTBdPp/w5r5romAetIuWXyNHSg5lgoIj",
-	"whAo0BqS2+08Cklup9vt9hoO9FjxbE7Kz1pKWad1ZFldj3CnCIahpHkKJe2N1lZ4ZvHO4FTu/UaIFam0",
-	"T6+8ErH5HirCuqAXgRY044alWomIic6ow+K8UJ0kF9yKNI5YjFbAzlDa2mc+neb6KvwmF7BMkcadZZt2",
-	"BCvQDT4PIFJe8SIDHSpmHAZqHmeBAnEr2lZORNOzqbBcZs129CnPrUyKjOcmYlIlWYFKHfeW0BztCtxo",
-	"1Wk00YfHxgFlaINRq8QwN/vKc3yuR1ueorjyHqWNuEBwW5bYwMIO3MhNaz3hBSzPrLg8ZGg0oKlJg9ow",
-	"6ZiHTqVEHOYjLpWxoT3NSRl9leTSilxyNsz1hE2LQSbNWKRsVMgUXibxPOMDnSMp+crAyLlIpUXVNeqr",
-	"XIyKDH7E+UkxZOevXqNayaa5SEQqcCg6XDaYowmfZ4CyKZuK3GjVV6XDLRPcCOcQ8pBeul0Tqbygv8xk",
-	"kQNvebxwhIUl9lSH9DN4nM3GglTfBAZniS6ylDn7n38XoaVYDORepDEcBs6FkInpSsZkPp6N58HVHmid",
-	"Ca7qaLO0ZzSoNSNUIEriVYAVAW9Bg9IRU0WWLe5gzOGqKHTozDiZJvxGmik+jEIWVxLD18tKi9dVgI4X",
-	"GA+cx9COYbm4olQk3ptUaoeoGc6kEW5joXq4DLxNuEVNPKOTCqAdDEYm88at5KI0OxHW2cpkkuiJQHRq",
-	"pKAG8AaEjBXniB5T/wwczURwgziLLrfwKD/5wJr5X7VCf+NKMEUVloSHXYJqLdmt4N7kbsYL4FhRQLum",
-	"qF0dsrgS6IDnkUQXR30VB9Ic/LIoyMF3pSwGdEpqBd+V0hcOkgv45UpcGAu7ytMLsr9GLC6FMXxLGJkW",
-	"PLsAgQy+cFKXiYleCQUiUKP4WRc8G0TOUGh0CwXJL5ASV6wylBjxqWCNlWAY8hd3HaPWdRtW3L7iOVpZ",
-	"Yel4TC+keu6XT1/4PeCn5zy5fDV8htvAL75d3gt+/xueXJ7U9oNfn52Xe6LPbmPnbl9P3bbwx9Ngb+5p",
-	"2uAZ7Q+/e1Vukpy+iVCWjKtNt03piVQ8A45YPQiCCF0/ElS/MgxEwRuE3143+N8NlocTYMDICxuQf6bb",
-	"RqYiJTaNT5H0DViB53vFMxOxbucRs5p1O48fP75RMH/8+HFNNH/UtKoiN03C4aspf18IdinmRliW4FMd",
-	"Gt7HWDzq7W8Uc3HRfvfLv2mihhgJs61Zm5E0TL7zDvves7VccJAiTZ03u4dBrM0ywPVEi+FQJhKYAqBw",
-	"HZlMTMw60Vc8l0CDYjRLisnUziOYp68IdoaEZSVgdJgGnwOSG7HY8S8UAeIhsP3IjYtWURQC+gqEAKQb",
-	"i/oCEeULbhu5j9tuoZBv+6frl2GdZM4rTWzptyQQONdyUf8cvIN72s4+0mQbCU9meeOnik10KrK2eF+Q",
-	"20TnqcgPWSaV4Dn7YdCN2KD3LnJfXOhcjqRiP+B37wueAp4n/rmIDfbf1YzMm5linNT5sGn5q9H7pAGp",
-	"4RAHcCng/3pYChAlsjej99KiqqvaNK//jU24zeW1nziEdcTMT/+y87v/+z/+w/e/2/3zf/xfP/3PiOV6",
-	"ZoAgBs8RvGsguzPYrQcsqcPr0cGFy3BTYrxKmbF6K8xIh8szeHbDUjHKhTAAwWEuRKonEVPsz//5v7Bp",
-	"IOoFZjbypl1cidw0MiIM9+OZHDg3ID1PZMULWrg3DP0h8wA+v9frdDvdZlVfppuFmoHQYGxeTJw9Y1nb",
-	"KA2I9VU/AeFQJZYusvFcc0iscl0kpJMnbyQQz+kpuBaoKTQrgPjTBeiUq6HrNA3/UPNFARWptvReo1sF",
-	"aM9NK3+BD4Ei0nSPHHuqAMZ20MMBXF8r4VWwQllBrtX1wJxq2Ugoybng2Zpni5Hfrs6ZnzVio1wXU5GC",
-	"Tk50SSpiKEZWJHZzVxyA9jUsq4m81yzOixECcjRGnh6SGyCJVuQgq+FidgoS10TKhjqvk/ndW6qsGFx4",
-	"077O8KGPgWxt0jWEogR9Kq4kLd3szPeudyPvPv/Xf56xXzPFZrhvZhKeidtuAI0qN+6AniK7+sXmNGJB",
-	"OGoIm/Z7pQdWsBe0My5dpU9lGqCpFptdynN6NDAP17fx9uTtC5botDSHVkpATUkoVYIleuT57MVGhOI7",
-	"93RJMJzAeON77rGPUYvuzkXCVSqBqTXZCKUds5gXVseRi7osH//KMJPoXByRaFsZWjbGdkLaEz9gE8r7",
-	"NWp1JVSzNvatnjk0IP8/4kLq2J2CG5JJA3xQM1NM4B/lY/PjAB2bmSENDB9ArM6yV8PW4Q+b7Arff9cU",
-	"24PPCVbAmnYwdkEJ5sLk0SxD8EYG4+KAkJqHq7kof7jzdQX2NW4uiVLi5H8Uub4Yc5VmDhzLxwCP1K+7",
-	"oQg3F5DOZiIHhXBqnbk412mRSDViUg2lklb4k/SXytmplGA813S11hvzKYKeSFTJ/peZfU14qRQah92e",
-	"WYfn3wz9JixqurWL4FvQVZbpZE0qr/MNlDLrhh2YoDQXBWpEyeNLHasUoTznqihHSQ+jmgJZE58D/W5J",
-	"PG202QHtfC7Nth6vW2mRMNcWWiSS9WIy4fm8ifQocW0vkhW2DbJ5eFoPj7IpH3nrqmPSGTf0dWc1H15x",
-	"jd1e6qsIgL8S1iQ8bWcQeaXEkrRHgaRolpZ8pLSxMjFHjAcf0VVUGpOlXYgNZztKk+Khc6Y0y7W2KHYN",
-	"eHLZDoyU7gGyqHXxEW+oJKFgXZRggTkdjfpywHRhUzgv0Z1Sir+lyJQs2gc3UrLRrS6N9Yr2LSb2cnez",
-	"v4Hk81sOjeRjpR6X89Ft11wanfEsfRBK/bR63e5Pf9pZOFTUjGug3t2rfby1wEu09Nb7IW624bkHQRYX",
-	"4czNqSIZ6F30gqG0C3zhljslPrRKW1rUJVBwOmJdwmd/1e7CMUR3axFvAlCWSy0vcXBMK2AYXMwl7IqW",
-	"CETjPQwQaiVBPS91hEVlDX3RmJzVYcdMiZmzDEjD4ilFmV+QchUflZEJ6NIFStcJvD31p4H/uvAMXDbF",
-	"ZWzqfanW/JpGPfODBj8dV+MH356VU5Wbd+xx23CVmvn5DmzKNfvdZuMNucxEelGZlpcjVyplkyKNKQtQ",
-	"kuV/yo1hO6WPErMWnet4t7M2smBRkLgzg9p2xqy7tEbdEOt3M83c1mZwe7V8Wa++pWLstJwNVarPp4aE",
-	"cn+D6F6/92tE+SaK90RmRbOW7X9hQ4yUwhxZKVLGh1bkTCqnBLCdXFDuDPu1I4eU6fu//ytL3RC7R6xH",
-	"PIYPjFBoDbldoPYGLtNvBc/seEsCVl1AT6H1JZJins43pMM076vftvwSzujlxYvipmo6jCAqsckF7ULv",
-	"uGLVHYq82SlyOnzkvUU5M3wyJSOhuMY/AU4SmLGoO2W/PtjIJ/tuMSW+G3398GOjl/bUOaS21EsCn5d3",
-	"aVXmwVAOJBduPNCFSsOwqYjFmZ45h+xYjsZx6WJtUCno7WbRGl7+VMF6kxhzPbvVLIvylgZ+j2uOSuHL",
-	"76/pqj0v3SpbHM8TYUVC6WcqZe8LjreV0uIodxNjMxvsnwbzdaeWxUkurUx4doFUImY7vLQW7a4LVVqw",
-	"FvhRkvWBG6fnr1iv983Bw/Y+8+/4SgRek7eLQR3XF8lt1cTa5m6zHA+LiM1vvYpVYbTf6hnMMSejnAcu",
-	"KuOz8Rwg3lkRlUunfrEimjDclSPNjF6CZdL+AKq3jRHMdIO6f3ryLfuHfVYuju5fxB52Hv70p//zn/bO",
-	"bz3Z+5WTNd34iPW6nzDhEh4Dk4c1LF2maNWlXz6htUF1L0qZcisB38fX3RjEvJjmVEn6W0RCO7Ho400h",
-	"E5uYYW4OBZCm8vfOuGHulc2DAPwcg/nGEfPulfrsK/AvGG7Jc7tgNIflj+SVaB5qS4+0i7xcGmZzpeMO",
-	"BGsXYxpI0CEEmiXmmkG8vH1ReI0XjdzVCa5GmluYtUko2/zmO+y8Kf7fD7t6rUENoHvGc0o0/0Q0D7Nw",
-	"uzfE6tdJwGa+sCCQctkZ9sSFUXU7jx91GlBu3cBvxLW9PWptnqN0d5jUhDDl0TVeKL+1hQoUFE0Rszn7",
-	"NRt02S/ZoPfTn66PWFwLs3C/u5/KoLq4r+rvwb/7P/3p+qd/YTsgUXxz8PXX7f3depQ0jYw+rWCKVtQq",
-	"x91QW8M9PfejBZ9e+RHxu3+ohv0YtV5h+YUm79D3Y81yTtbVSjk7Ql2tPEZf9WzOeGY0w9yL+G/jhQjZ",
-	"TauS1bWxv0V1rLf/q2Z97HUuUokiwu3oQh3lNkW0qEUq6OYUoVrnOWmsi6RhPW1YVLXd7E2XOoRIZd7f",
-	"hlTedUjsulBvUoDr8aCFWWWrX5aBivxKbGGPo+dvZZWjV7c3wVFO2m1uyhm+2SQrrrAQNnleyWy3ZI6r",
-	"AWJxcwtyht/BDU7bpYVvjYnrFN66F5RsdUCU0ro1bym/Cw13lN9V+W2dbErocVtlNDAwbnBThxkfNRjv",
-	"44HI9OwCAxjiiMV8oK9E9VFc25xPqdofpu/g05mmVB3/6T38pMQInUL4t76AvV5IVQ1VKGc2ufAWqPim",
-	"xMJm8/9ymG1gE1vL9/1zwTsXlSegUaevzGWgAOiB5VKVIVHxUIosE3lzwNNEcHWxpYvT5000aDtUqVEP",
-	"WS6oZJIIooE4ue/Sm2NnF/KVls2h02mur+UExje1gMJGg2HkUMHfRn//pR3DjRfG4lB3ocLLtMHv2Zx+",
-	"dYVOTbryAVAXzyRAouUbsZ7EOC66HYkJUXbdRS19Bxu5vOribK1k6fowVP9gs8el/LkZEFR0a9mX++yE",
-	"PT549CvminkxMpiYZUvjKmMaZeILZV2hU1dcU5YhfBGS0KnQzga/hHir4mOfaXSv8Ey62meRK8DVUMnM",
-	"5QRvyDFxq8/g5UaypapIlZUFytiUU+h7g1EAH3BSxroKZ/Hv2k4KbZ8CubaavS+0dQnT5E6i3P5H3e7K",
-	"lNgmFz3M8+2bN68ZPYDhuZ3QhfSolt120G2MkrfSZg1QOB/r3DJDDnJPZfz9gVEal2pdMblFb87bs1Ov",
-	"Gsxhs4uDedpd5OoQufOlEFORH7pnDt0NiR0pDbSF9dIO/ur3GHgR11gMaxfn8McNEeSNz3aWvm5fI3ww",
-	"XLHJ4QXvL1z5Q8bZ35+/esle00vA9TQlRel0HrF4D9RCs9cvut2HicJ/hPuU6KyYuK/ivgLcPDn/Do3f",
-	"MT0h3a+H7nU+Ee5xxGReVQ8mgWA9nP2+1kL2zKcSbOGE+V7nlwARlFiiKrwt0zPATweQsRyN4SMZdERa",
-	"MskFyS93NQaVWCZ9n+ICu3O3ViP4AqllOcCx0sPLEMcdUL4Hgnkh0EkFg4yrS5boPCcz+u42Gbx1j3R7",
-	"+bcl4JyFvG8xxqgSmkgaiD4tv6YE0XaKdOSinba8m0TnMeopFQnaayM2zYXB5BwqKymqoClfxLrTkM96",
-	"Y/WZoO5LWUH1E6vPJKVV++bEmCf+aRKHTZMy9jLwZi7a5reLDi7XVk4WFLCxK5CjtswgtMHFmpWhZhua",
-	"zGjA4/Jl+nzmhvhYfXEbA9NdAH8zSzAZbJdswN+P50fMgxyoqIMS8xXXqSql0/2rJO3O6rNqPJVCbZ28",
-	"nheKcRNkpt5B8N2tLFSbJNX6HPNt82hv4UKbaioE3+y23jI54KxQVFqgQTL2O1hhlrNA3bDRQQgAvzoV",
-	"xn3+gVA3MVebIl2hnuHsIPe0ourzyfl3iHS3jTXcXFWrTA/bvrNFdKJeaVr/BCK6vf35rAgMzw3JgyhC",
-	"bT6cT3W80Z+3XdBgLcCvhFx5T1e7NsM9VMCJquSTtZZLQBEa67Pm9ixLdkSQpyL3wW+bi0NrsHxTTGq0",
-	"92wMwI3Kl6z0NGyOgfccfLutgb8JaJW1fSmqdQX0buvUvgWD/JzUMiR+694q/Y+fQtlKd/2iOrCW3C0j",
-	"oVA2n4dIiAapsvrnVvSxYU2PtnP1lbRzDaWsNrTiet3KWrrOD5iujK7urWJpm1QzTldE5QRq5TYZ8zdz",
-	"pgpTq0mC3a0F52Z9CO6A4v01ma2bANoExfNEk/nQC5B5oczhLJc28Dge5oJXTOiwyilKJ1JtKGfiRGeF",
-	"Mt+7sekLmuCMxsevkA+YMsUIvzumiWC9XuC5Q1/6LVIvV6c23g+SVMd5U+LbimOu0cHPgCtLQL0hpCN4",
-	"OATvZ0WcTwUyKv7L3pZcCGbFtQ3cNUdMYVUDm+uMJWOe88SKvIxht3xAvE4qwYbCuTOrCJ59b11bEcLz",
-	"+37/utttw3+/gf/8Bv7sPev3r3/1bEXVuzeg9d5S+L5FKt3mwuPKGFHqx7a5poSErkEqR32/WfU2IsmF",
-	"7bBzbDiDtmyNVYOlrXfaSqmg8Ya1JGjGqCxuShu5MZMKj+h2AqoH4mYGrBCxGsxYmuL5uWUzmWGUUGU3",
-	"OWLUnIcbVzXVoq+RPhSptMzmXGadTznASoQ7WCfANfVWWVFdlhbSBHO8heGtLgo8whDbuu3HvD08bj97",
-	"9+M3H9vhx4NtPvb2myPr3jYWBzpmWB6oUHAVdVp68yajvecYZeL+/WE6nbxbjAB8uLZE5r9p//t3P/ai",
-	"hyvWUy8TtKVrCYv/9PbM7/fjiOrCwCiLuSns/EnEzM71Lvs1S7rslyzp/fSn64Ykne6mIfq9DR+8lCq9",
-	"OaALn4pgehy66eJ8V6mvC4FGaNR1yYpqzqp0YKo3TMmWvmMfGSIaiofWcr258WmaGwpjbnWv6UX36Rm+",
-	"/zFqLRZR2pIdYN2h5pw3pW1j8eo541UVKLLuXsrpVKSNlaCWWUExueADc5E3DP6v//zh3549/VAVtwwq",
-	"hQReS7MUsNa0nE8qmvBJodVhLHWw3ciD28G26Sp+H85eB85zwY1tU/Kv8YWSOh5DgbQbbKzry3Uisrqa",
-	"feQH7qsqDOv8iTnypaaSsdb49kS72APXT2swp556E55lWFi8mDA97Cs+MDor0C8ZFmoxNx4cSkoU02H6",
-	"aqGiGDZxXaqntFAZG3TkVtTq7V3Tf3+/j//O6b/uk8F/YXMb4lgJ9pc0fPn5VF39bvHz/sIX/7j4efGB",
-	"89oXx7gs7NQnkiKXdn6OpbcoCxX7OB4XlLO8QI2OXf9KlHAPGfV8ZBSggBzdRSh0GPJfc4jdQJyG6MqP",
-	"lyoiBkPWlEQMpQTlLaZ22xRnFPTbbuqwi4dDtcOAfOCSKrQfWzulJodSDfXyloJYFvIRmZqjvlB4par2",
-	"EbVyp+WtwtKUpq947eclu3DkCz1IW/a0qMqdUWcKl8XSV1Q4noouY0dZU1VSldZ1HDARm2aa8lyvRG6w",
-	"XYULtjOIKa7Rp4nYPxx7ZziV7K2JWH3VVw8eUOFN14/DdXnglhoXdB48YEFDRteiASu8Bnvpq6BJh+/N",
-	"EbHZWCZjzH0u24OlOZ+ptV07+mpN2w6EQb1zB3yz0L2jr+rtO/D2UcXrdb082EIrD/YUm3fSgcJUFZQr",
-	"MSQXU8Gt6wcBlMQb32OE7i9+wU7Kemymr9oUO0TBc9QiFKsHKn4pLhKc9Y303549O2EPHz58zHZi4iiH",
-	"rNSY4t2orxjM+PbNCdOK6cJOC9thlWSOl5hcoLA8NaJRsRs+USXTgRW9dHXB4UdXD+/06dOn7V89OmDE",
-	"wEyHlu0UmoTn+Zy95C8ZSu74zvwIluM7rNc7m7vCXNyJL65QcEMjEmwgzpZKdQXdxHOt7S46voGjxhFD",
-	"as44M7BrJTLckdOAGDE4uDFDUEFq7doN24mbRJZDSuKPdzuwFG8JKIcCICWZNoAAwA6zLGKGwp2oCUYB",
-	"8Eu4TcZwimpOs8FYVZdoWG3qKr/gxUl1QrSnhBkRrIE4YkmG1fpAaypoINclfaQ0nhhuBnOqU43vXmJD",
-	"ZyMxTYNbkTNXJ8MwnqbuDTp6X4+mIn+mrOZgfDkHE/miyUiWyOgPkMAbWN23Q9YDlv/1ATs+Pzk9ZZkA",
-	"jcFELJUjQFMsiNABen8B/zmE/7TjiLbEKd6SOgm7V+F+4btsh8QfFlfXO97tsLdKYvVTGNnZSmC0wFzC",
-	"EaGHmKfiEDLoaezLCBBb6SsihfHeVS9muQZRQ2GD7y144LGLDgAkkQBcJfpK52yisUooMkhYyAfXSf4D",
-	"2nw+sFHO4ZQ/9NWHdrtd/h8eDNkp+xCeFfuALn5kWRFZGZB7YdE5927IfNkH9vz0xTlG6o98rcwP9CIx",
-	"5ZK1hCyFRqpzbfYBeIuxfDhsHIH4TcVszFEZzYKl9gCd3MDE/dkHhn9IY5H6w8JQVEPaBaMWntLT4Ahn",
-	"XFxfPa0JDdie37VlR4i7BmHpRBJfI/ldXFuhAC/6qkHGOGTcHeVYZxi59+AB4LNW4sEDJ3JOqLfPhPQt",
-	"v5O+kgaXIFImrkH0lTbDBOlcUJdxV8jGlLQDnvbcNRNWYNv+vno1Fer49SnzIpsPDpq4QtPc3dVq50Aa",
-	"K2nukP3wLu6rHT/Ow06X8SzTM+NuHwFKq2yO1/AVvLSP0IVXTp8A91JwUiRrGaCKx2yyWW9xgp407KDb",
-	"OyLeIP23jqSD9OQgRQvCpx92WLw3xgI2fwQisYc1cOjPibC5THy/iz09FYpPZWfOJ1ncV8jklXaT7MQe",
-	"cAiIXU8BsFFLie6UsYGNyNhSTP5OvKrtdhwRUHhfxS46GUhSQ+R8Q0/wpahioMYusHigU8c1QE7B/umP",
-	"u721QceiM0J2Fe+V0unefr1sYcx24n6r38I6NfDmbKwzen/3iGY/Of+OJSLLYNqNw5gjFqsYB+y1Bxz4",
-	"4nQ8N1hUBG3TOyjTMUaN5RlihhKst+vNUW6iX+15mSp2yylDnXE9N8VH++HeFyKfH2INCljblNvxoUyJ",
-	"y8S0iMPTVEym2gqVzNu/FfMYFgnIV9prJ9KAIKlc0HUIehyIJFtpvOkhJwZmiH3Fe+6qvfDowcxcWX4d",
-	"uTwNUFMcMyW2diV15qgxMKyDbvcobDkvTV/Ngm70g2J9G3q2A4K+84gHpZW9dNFXgHPA6Eu09YWbOMsF",
-	"FomWFYzYpZij0HWwvw8M7lG3S3oC0I2+6lM+kOIZoVK/VTa4j6uEjPjI2UxAEhvBQtwNdiJRpuEKv9RI",
-	"7WEyJ7mSFaxM/ZCmxs5L3YWkNM9069kdIHqG4NNKoLzoDQ0kYSHVvhRT69K9M5kIF9dNtvEWCIm5FNaX",
-	"7qUUjVCbpDAS49zrnW6n60IrgEa1DlsPO93OQ7INj1Hx9lQO/h6JJiOuMjOQY/a7Xbh1mfBJGokwBolW",
-	"Jq9Eh71EOcVTvk4ZkyW1Ok1bh62/E/ZbN9WCI2y/23U5ndb3CA0o3h9cXCtd1JuMU67uGareC/vAZQI0",
-	"HtF8TcOU69rzlUmppVZotWgd/vAO7VtUIrL1XF4JJdBIaTFt84dq54YMHp5nrATy61zD/ReFIS+cuJ5q",
-	"F+lOitcifI/oEcwrQeYJciRwHzvT+SXZslycjGE2L4ylO7V0Ji/cym48E1jX3jTjcuE0Fq3QS4B3M9wH",
-	"6AOwTcp9rDyEkFOvPIk3Y8G8sFIqRQGVmHHDBoXMqJT7RtfeDbfdtfeL3ALQ4dJBzvLLj9g/Hr94fh/w",
-	"fxOqjutAT+LThjTGGbdTbjnwc8bdr97Y4lgW8Msiz3GDj7oP+6qyvy+eSvPVP6NF/UWoEc6NvRlE/glk",
-	"Cd56ePNb58SV3yp+xSW5AdYdK3XcuYGkXfX2qujUxlN98ADNsYcPHixaYJdUOZ171QWZKoXXMCUwmWso",
-	"c4Pl1FORU8udOAhpi9FS4URZx/YVG8z7KpZp+GOHPZMZquSJngxABERZ6fjlkyMWAzKjYIpNlY10BrfY",
-	"6rivyiqdERtoOwZaW1tBh/2Wmv1N+cj13DmkQrrEKsWV1IXpqykfia8Mi4Pi9jHjBqGBf7v0WUGNX4a0",
-	"3KOFF0AWay63z45du0HYiMY2hEcoa9StYakgZ6zO+8r6VtoTnjqAIBr5ySPSh7pNKPRcGnviQ35LWdmg",
-	"6x64RAslYR9DcFgPStwMgUIv/8eoedgqIubuxiwDKe9uyDLHdLMha5HGq8YMIoY3GjQIRF4qocbzTAK2",
-	"1W52VOEDhrM2rAEwp7aATYJrlud/zm3D7CXmrZrd6juY+zUfCWbkH1fO4gsKVhM5f0Lr8FE3SIncr2VB",
-	"NqR4LM8NTLuO32VONZGNspNG08LKDhkbXyqDLP3dPTK9qvdJA997pQRuCHZJPAB538EmvO83vKznhq/0",
-	"bn7lreLObipSemkDbvlM5wOZpgKjAQ72H9/8xhutX3A1d6szfyFuXvLvE6pjI43rMu15uOPX76LWkrER",
-	"o2o3CqStM/+9H2X68R4kAIxsI/17KG2HnRKXKn1/WiUiqvil6wAJWJEyqfoqrjfpcV1kpXHumlyUVXWb",
-	"ZUPKUFlia00HUz1CV//0Sev+8WuV/O/au/y8Uap7cPMbL7V9pguV/rXi4LFPmPX9hNCD7hzxFDfr+lHd",
-	"N3buoQ9kIxxdj5Pe1JWAJJ4ycQWqMR/owgZhYF5JywsVMZ2lpQDvHAqBQwaNR9OpUGlbq2y+DhOPcQs/",
-	"S3TEpT3XKzVyBJP5gpI/A5QMrh66rhJH5D0GOmRahYFboNw007YzpWi2++CMoB7CHKg94mTmagRMzjDO",
-	"Xr/8OyYnIDWuwajXmbavX/7dfeIUrmHPQaFBRh9IxUk+2cSyhbv8gkV/cSyCixOgT8ToFt07F/O3/B5Q",
-	"6rwM06z6SvvKM2zC80uR7kY+DA67LdPOMR6uLH7ZVwOuUhI0ednCjE25EhnD6ovIAgk1S0cRJ4M/unL6",
-	"SvGJVCM/fhm/F8QGwuhO7b8Jvc+/+wzoba5Gv7y+lan6C0L/TBGa7s39I3QV34P11LTZBqkXcfh0KRAV",
-	"9lRMmdWs10V/sYsaCyJg3YYxHgIE9b7ii3U0CZuThpY83LK4+j5mO84mRDGkPrh2t8OWXMod9jqIbeJB",
-	"G5JydVzNfeAnmmjHyNlRh5iNuXVRPMaX+NO5JwpHtSSVvsJGfQbt1kSaYqy0GTPD5961TSGTGQaLFdbI",
-	"1FWockHFIu0rrLMG0yAhY5zUF2dxdmoOBUhie/4qUtjNg+77vjroPm6iWpTTFwDlE+kWItZvdDq/Myl/",
-	"uXT4x3r2A6Zu3aOa0VCpe4V5zcVRY2g53nksnubDF1zhtP/PyG53A7J7otUwc3W2D3obrOk1n2eap2+0",
-	"fs7zkaD3Hm0CAFNMqRvcC5FK/mZOOYEH+/ubvOxCK4BSP1VW2vlfrRlyoSP60Mf6hFaPkAtsyGPW8JS8",
-	"rNd3MztZLxO+0FconRF5w3yBxe6mwFpi37KUBvBdSzE4sK/IVkJuwKoUINVqcylBVL6vKf2UUZE5qUaY",
-	"4bGu/JoLEuawABg7ZjsH+/slUdZK7HbYcY2hYL1Llmk1EvnyztDp9/iwoX1rX50JW+TKhDYfTC1RekbM",
-	"0zSReKqVcBdm1bsn7vWSfZ+ZsK80556VdSG/EOsvxPrejWNLofF3bR8LmkDdqL8v2Lsycg6X7cn0kALz",
-	"y6DRwRx9P6uiFF64qe8RjYPeWCv0Xbf/L/7Ou7+7WRYkCtXvSihrBP3CGi8wLyv43Cw9BDeUmqBjY1qq",
-	"jhE00ut12GttqJC7ojw0+BsfpkwjUPRSORyKHNVLlDRAfVq8835oatd5Hfyys9/t7R71lcAQjrzaOrBj",
-	"l8rpUo6RXYdSSTmIRAdrXzkLF6ytWrq45onN5i7cqLaur0xZ/BN1177yC1VO7SU5h2QG0A33u93dDnsz",
-	"zoUZ6yw1LBNDy1BOGfZVXCWjxphLGfh3vzJlHqfP7axVZDBjPcMtZBnVHGWut1qQ6Ej1NnB/EnRfF5gO",
-	"8tLuatX0hY8Hug/xo96q7jOLH77V3jLNoqCmhGc+Tn7h5I/KE651i/wYtfaJVN3z+gjt3PnpvNY+ktIs",
-	"EFjPdbKiS9Brbsc+2sYzkjjgVHs/wrX5iIVJ6gcSrbN1/syltS/C189QU0bkKakR9mPgeL1DkYdKNGzL",
-	"zOrSl7vTdyCERb78iy4DbwZzUEDp53h1vgFR0qaA0Sm34yq4rex5ugr1tgnJXKQdZioSOZRJQM4CGrfQ",
-	"pr8p9C6oS1ytaG3s37u/CBmvRM8vzpa/PKa/Uv40bo/KebGxxyRI217yeWLVEV+rfScoKlI13XA+k12U",
-	"4YYSE3WDwtN95VP8ykC8sqaIS80IyIVUFIuec2V4QkHynO13e301EVyZINfaJSL7rGYq/k+2LxXUiqAc",
-	"10Fh6Tdv36qyKJ0wq3OsWGXYDiwAKwlEjGdZ0JNNvC94FjGrNRuKWV9RuYFd8tnILHOem8iXB3AVsEKr",
-	"XN3fcchyPuurlFtehR3acY6F52Z83mGnYY4u2zm4vt71tWCcYIUHdVZkwrCBmGuX0ujSX1BiPQyTKyeF",
-	"8aUuKMAMPgJMq3PyNcwKdeRFYABJ6Wjmrqtmxgciw+AsnhsMtuyrnXypLQsbaUoEjktIxnRZ7Ez7kg2u",
-	"JoQZw5FxrNRSmYWP3B1jMq3J52FZc8qZ/gULkmb76lyoFIsx1PNorWYTUBpyYdG9bvhQUHoGlTkB1KjK",
-	"QgVtFIzL85rg8i/FlEphcssywY1l+wdsrIvckA+/bOMF2oYaiXyaS2V9YvP5t8ft/UdfY1kLa2rNESho",
-	"AFmJK4HiI+b6KuczSr0ezK2g8hjnoCdeinnkM0LKuSKKqiv9Oj5vP6Ur8eABNQXmWI7Cn86DB5S+CsqY",
-	"dzai+riQeYKrQGehl55dtRfKLg6hfiamGZ/jtHkhYiwaakQClxWQtvJ51rfjNV4b7ukQ83vDB4OM0/p2",
-	"S7yUig0zORrbQ5elh1PPOEKU4RmCakt33QYt3KycCPRY+pShHHcCOiqKNiNh0QgOo+zQvs+Ezeft46EV",
-	"ebzLJJxulVUzlEqaMRryJVqi2kC3/GRwxRzNAEyHCR4BwpevYx9kuBuXYl7e+JPz79hOjJmXibmKd/sK",
-	"eFmt/oa4BvkZnuwwqlx4QtetDcL0IStf9ogPd9alwrvKLYmeiKqDFt3NSjpjMZGXOGJxNTFW0aplYe14",
-	"xkUEIPbppzHb0VOqcbN75Lzs8aKgA6sDGhpMi9RsIJwUxnYOut3dUhbFCyoNe/vmWfsbtgNki3pbAeq0",
-	"0ceJgTuY0YVlatLdCCsZHPS+6fbVjtu664SFjfdSd7v7rfiIPX8GR3Ry9vwZVQsQKjW7HfZcKmEcvccL",
-	"2VdlqRd0x/wi9v58Oh4MHwDC40sFUpctrDgQ/tChfdElpwwsnNdRFDqwDjvBwgemNHhSXyw1J7euK+tC",
-	"1RGwJopr5POhimrI9Qw+EtHFDwv1XsqaL5dSYb2WuTDsA4v9CDF+wPdjXz6FCHX1sGc3Qdfv5i/xdeQT",
-	"1cvEgWqvUpEDVwSmXlPCv6X0BKjdYsPTP//Tf2fdhRHKMg/ly7q5UdrqH3AcAsKFRJAoXc1S8bSFnfri",
-	"7EsvLDQmjqiwj2BdtkOPkITU26ViM21Gjn5aDfDKXM86rOyb5qsOTdEmAz+aOoXHWhTlsSG+ulMIBUEy",
-	"sSEiegopuK0PUj+OXa8UIhtZmCGA146TLINaFjjNwgwBxHY77EzP6J4zVyeBcVM12IWRKLgB4ENNiRAP",
-	"wnldY1JZ1XVQc8QCaRh3x1YrSVYYweIOZmmmIpETnjHsaYilKzxdQyKskErFvc4j0X4Y70ZMaaq5pQvD",
-	"VWqYEUDdrMaMzpf8JRDUUzWMy1oVmbwUYbkoCuelIlclRDAQx6DLVWFZEMdpsGxKPc8TiCzmGGM8vp59",
-	"ZRjgdElZ8WbR6yqsnpMWDqSpByGRGu7L7lQwpN9d1TSAoxOPK/auylbIZZ0wrgKa5mwdQOxgDOeQxocO",
-	"uo+/JlkoKLqBcm/EXGPJbZpdMlSBmp7HYil0ZxDGlJoBMMa6KwTHnT//03+jSLJS+qXqjY6wEtnSORYT",
-	"c3E38MqjbtdJwvQ5DEYjhvb0Gj8d9lUcx331C8fTyaASUJ/pWFuN3LHdYzuOxSyzkt2+gmOOvFBP+k6d",
-	"LnoSGJW4EXlMw5Ax3FKkJDwvoue9qNt5FHU73V53P4rWPtF9/E3zE/tRr9OFJ/a7j5qfeBjt0xMHvR4+",
-	"QVD0v0f48qNu9H272z3YX/FA7+FDeuBhtO8AusKmf1aorSMRAsn3t2LeWjYsgcSG9Th2qi56Y6F2SW1w",
-	"ihq6KleYlT4x83ib1QRXq+JUq9Z1B8nbm65tqYuelzOjsiDlqlUutLr5xLzgaomlBAur00CEXb95D5RV",
-	"Cwr6km0GtKq70b1FuxRBDGPU8gpCfYBlQCAHpJKQKeMDTTnZ65sub+DJ6t3lvnxviBVmUGwh6fLTKFiB",
-	"6Cblme6A3OX4V+602r5aMjFEbCaql1wBJ69se4XPuRIDN1STztxQ6hiVaF8DRRov/7vZSk+nHqI7uXT4",
-	"kpZZV+JBkdzEc1WWPv8YbegsQ8dEoZy3LC8URd99cZR9cZTdd66CNliE1yHyEKtpemQOI5WKdeGkYfeo",
-	"Btv6Fjntq+3rnt740ImyGewhrtgLvxSXUWnnTqXD6FGvpLvvnP2KNKBcJEJeCZduVMFgVamjW8g6Z4W6",
-	"79xZWNZqWv3FX/VzSGOv9V2+CxSjqrmbObDCBB9jCozIzrlK9cQXWC0N9L39b9hAWrNbsUFsJ+gK8Lr0",
-	"c+qWRIWeiMNWPFVl86NajWxyxqAECBjmzPp9NeZmjHhHXp1MjwyTdnX00BvXS+k+pLlaw6XPLHHV+nGt",
-	"wGM8pqgqg+AOgDowgU76c8fyL2z9/qkM4ravdh3QGEcqNvSL09Ml905FJpo6+aygL2dYM9qEbcKkrRue",
-	"ur3dyk/iYjBdVhXGGpZtL9CmlWHRw6Za1AdNpOIJLteTipujY2R669gY18F5mbMfLEOLwPIlduRngCV0",
-	"FJ+AJvWSj/WmOz+8g/vgRly8BKfLvWkaG9KwnaA/w24nCJYqsJ/5UttJl06/2L3GYLa9zMN6OVjTv1Mr",
-	"fQYy//KgKzKBHWbW7KDheGEi2vKgC11swi6BtYgwMWt4maKQMZTWtw/wMorMg+47DJvvSBEuy8cGNYz6",
-	"+tR1IOiE9fDwKjTU13NVin14D/7piuY6D0RQy7WzaMEisLz7+P8CAAD//w==",
+	"7H3bciPJldivpKF1DNkqgiCbPZomQxFLcaZ3uOrbkt0zWg9arERVAkixkInJzCIJTbfDDr94X/3iD1j7",
+	"BzbCoXD4bfy+/gbrSxznnMyqLKAAAmyyNXKMIjRNAFV5OZnnfvuhk+nJVCuhnO0c/tAZC54Lg3+eCWdm",
+	"x0MnDHzKhc2MnDqpVeewcy4yrXLLnGbXXDo2EENtBDPwilSjbifpGPF9KY3IO4fOlCLp2GwsJhyGmkgl",
+	"J+Wkc9hLOm42FZ3DjlROjITpfPjwIelMueET4fwyTkpzJU6/XFzDm7FgGfz4mWUyhyklfD3lbtxJOopP",
+	"cOB85VL+xohh57Dzi90aCrv0q919+/b0yw6s5zQXk6l2QmWz34rZ4kKOWVZIodxONtZWKHYpZmyLM3if",
+	"Scs4G2mds2ysZSa2mRtzxyb8UsAvADAp8r6CJQrrmOVDccSsEMyNBdNTYTjM8pll0Zzdvgq7pfOq9xut",
+	"dQcW24A7v3ku1MiNO4d7+18kcA7VZ4C6c8LAmL//7njn3/GdP/Z2nnYvDnfe/bCX7O1/8eFvOtVxWWek",
+	"GiFwzkq17HBMqR72aD7A+3aqlRV4VX7D8zOCI3zKtHJC4Z98Oi1khpDcnRo9KMTkl3+wsNAf1pzxNb1F",
+	"kza3+oIXQ20mImd2phy/Sdi10WrEAFZMG8bZFS9KwXTprMzpYGnYQzYJ7/bV35+/epkwzgi27HosjGCc",
+	"qXIyEIYNRKHVyCaMK1aqS6WvFRtKUeTwij86pk1fGa5Ggl1JXXAn8NfvS2FmrEIquoC5FpYp7RiAZgYX",
+	"6kPSOdFqWMjsk0IPL4qwujQZILJ13Ak21GYggbzgj4QZW5ywnRlxJcW1yBkvjOD5LGG8r+ina+nGunSM",
+	"s6F0CeIXvQw/EOD5RDBZIwkiq3WyKJhUfdj+aOy2PTye4TJyoT41QJy+FIoVPLu0TFzB8dlMTwUrpHUi",
+	"Z1Kx9GYnoM4O/mbTLiz5VMFN4MVXxmjzKZcdJmYCZu4y2MZA5zNm+cwyrYoZ6yOZrx/qdxhXeeOQgVh8",
+	"SDovtXumS5V/argDZcqr61gjibiR1uHKXvNZoXn+Ruvn3IzEp14gQlTcZEJ47LDCXAnzmWWZVkM5Ko3I",
+	"WSEnklZ7LsyVzMRbxa+4LPig+OQLzrnjA24Fy7gCSA7grHk2FjlT+joB+hi2ITMB7NKOS+eAAub6WgHr",
+	"mBdJdiqZpG1d/undSHrBpb3R+gVXM88f7F8Eoz+z1UU3QOakZfpKGCadDYd2X9t9q3jpxtrIP4pPikUv",
+	"pLVSjZKasyUVv9IGaLe+FDkbCG6AFQFU5jb97bff7hyXbiyUg1WKRdki/Q2+nRJV54qlSE5Sxp0zclA6",
+	"wbbOnp2wz3/1pLe9WhSdl2cIdFOjM2Et4MtXykk3+5QQ/FYUxY4XKKSalo4Y9sAIfokiY1kIpocx2hx5",
+	"CNgUKZhlgGF9pYdDoXJAJZQUamJbFsJzuLfKltOpNk7kL0Qu+RuEx6fm/ogSn1l2QrPuwCoAOYBgaDUn",
+	"CjOeZWLqbBfFTz8HLOEYv+cqE6cANlx7nkt4hxevDQzgJAiKQ15YMb+S+m3mxkbYsS5ye4SQxDUUYuhA",
+	"hGMORXdYklAjqQSK5kNeFo5t2THJZUVBXForfHAi3FjneBWn0Tp+6Ax4dnmR8SK7KPT1hdOFMLCCiynJ",
+	"YOImK0orr8SLoDHR/YXbwV3nsJPrEmh6AqI9PbDX6yVtChaJkXDk9ZwTqS6m3NqLoeEZgeGHlWOvPfKn",
+	"2clYT7TNRM6tk5l0swteTMe33sZjfOhDQsIIHPqG74FYdqGHF0O56ZsTrnLutGnRIU/GAoS9a9Ag2ZDL",
+	"ojT0L121K2FymbkjQgU3FsYyDvpBfiWtNjNUsZyY2NvWgvO8BAUM13NzSi/t1fDlxnDQG0slvy+F/x1O",
+	"y29AFBvv+ubC2Ie9CnCVC3ElCusVXXr0Sfze/qK1gV40F/b7khtilB9x/3XpCinMRab1pb3IH2yzYR7r",
+	"yhy4pGfxDzKXKZXd6Lw/VIPowR9E5mCQmra+1oXMZhuS5q9QA6qoMhDWoTaZSALhtTXJ3ZjGLkLn4ynm",
+	"JpRxjbeX07k1Xm6hcmu81Urj1nivQeE2J0gNEtRCb9ZaQYParPNGg3bciUSsQwo2eGsOsdd4s4mmt77w",
+	"IZaJv4shMAfztpuw9EIuv+fJSixcjWHzB9A84sUL3gBGO0wXzye+ue/aKFgA7bzl18qRkkOZoeCIMAQK",
+	"tILk9rpPYpLb7fV6ey0Heqx4MSPlZyWlbNI6sqyuRrhTBMNQ0jylku5Ways8M39ncCr/fivEyly6r66C",
+	"ErH+HmrCOqcXgRZ0zS3LtRIJE91Rl6WmVN3MCO5EniYsRStgdyhd4zOfTo2+ir8xApYp8rS7aNNOYAW6",
+	"xecBRCooXmSgQ8WMw0Dt48xRIO7EjpMT0fZsLhyXRbsdfcqNk1lZcGMTJlVWlKjU8WAJNWhX4FarbquJ",
+	"Pj42DihDG0w6FYb52Zee43M92vAUxVXwKK3FBaLbssAG5nbgR25b6wkvYXl2yeUhQ6MFTU1a1IZJxzz0",
+	"KiXiMB9xqayL7WleyuirzEgnjORsaPSETctBIe1Y5GxUyhxeJvG84ANtkJR8ZmFkI3LpUHVN+sqIUVnA",
+	"jzg/KYbs/NVrVCvZ1IhM5AKHosNlgxma8HkBKJuzqTBWq76qHG6F4FZ4h1CA9MLtmkgVBP1FJosceMPj",
+	"hSMsHbGnJqSfwePseixI9c1gcJbpssiZt/+FdxFaiqVA7kWewmHgXAiZlK5kSubj6/EsutoDrQvBVRNt",
+	"FvaMBrV2hIpESbwKsCLgLWhQOmKqLIr5HYw5XBWFDp1rTqaJsJF2ig+jkMWVxPDVstL8dRWg40XGA+8x",
+	"dGNYLq4oF1nwJlXaIWqG19IKv7FYPVwE3jrcoiGe0UlF0I4GI5N561aMqMxOhHWuNplkeiIQnVopqAW8",
+	"ASFjyTmixzQ8A0czEdwizqLLLT7Kjz6wdv5XrzDcuApMSY0l8WFXoFpJdmu4t7mb8QJ4VhTRrilqV4cs",
+	"rQU64Hkk0aVJX6WRNAe/zAty8F0liwGdklrBd5X0hYMYAb9ciQvrYFcmvyD7a8LSShjDt4SVecmLCxDI",
+	"4AsvddmU6JVQIAK1ip9NwbNF5IyFRr9QkPwiKXHJKmOJEZ+K1lgLhjF/8dcx6dzswIp3rrhBKyssHY/p",
+	"hVTPw/Lpi7AH/PScZ5evhs9wG/jF14t7we9/w7PLk8Z+8Ouz82pP9Nlv7Nzv6yu/LfzxNNqbf5o2eEb7",
+	"w+9eVZskp28mlCPjatttU3oiFS+AI9YPgiBC148E1c8sA1HwFuF3rxf97xbLwwkwYOSFLch/rXeszEVO",
+	"bBqfIukbsALP94oXNmG97hPmNOt1nz59eqtg/vTp04Zo/qRtVaWxbcLhqyn/vhTsUsyscCzDp7o0fIix",
+	"eLK3v1bMxcXOu1/+TRs1xEiYTc3ajKRh8p132beBrRnBQYq0Td7sHwaxtigA1zMthkOZSWAKgMJNZLIp",
+	"MetMX3EjgQalaJYUk6mbJTBPXxHsLAnLSsDoMA0+ByQ3YannXygCpENg+4kfF62iKAT0FQgBSDfm9QUi",
+	"yhfctXIfv91SId8OTzcvwyrJnNea2MJvWSRwruSi4Tl4B/e0mX2kzTYSn8zixk8Vm+hcFDvi+5LcJtrk",
+	"whyyQirBDftu0EvYYO9d4r+40EaOpGLf4XfflzwHPM/Ccwkb7L9rGJnXM8V4qfNx2/KXo/dJC1LDIQ7g",
+	"UsD/9bASICpkb0fvhUXVV7Vt3vAbm3Bn5E2YOIZ1wuyP/7L1u//7P/7Dt7/b/vN//F8//s+EGX1tgSBG",
+	"zxG8GyC7N9itBiypw6vRwYfLcFthvMqZdXojzMiHizMEdsNyMTJCWIDg0AiR60nCFPvzf/4vbBqJepGZ",
+	"jbxpF1fC2FZGhOF+vJAD7wak54msBEEL94ahP2QewOd397q9bq9d1Zf5eqFmIDRYZ8qJt2csahuVAbG5",
+	"6i9BOFSZo4tsA9ccEqtcFQnp5clbCcRzegquBWoK7Qog/nQBOuVy6HpNIzzUflFARWosfa/VrQK057aV",
+	"v8CHQBFpu0eePdUAY1vo4QCur5UIKlipnCDX6mpgTrVsJZTkXAhsLbDFJGxXGxZmTdjI6HIqctDJiS5J",
+	"RQzFyprEru+KA9C+hmW1kfeGxXk+QkCOxsjTY3IDJNEJA7IaLmarJHFN5GyoTZPMb99RZcXgwtv2dYYP",
+	"fYhka5uvIBQV6HNxJWnpdmu2e7OdBPf5v/7zNfs1U+wa981sxgtx1w2gUeXWHdBTZFe/WJ9GzAlHLWHT",
+	"Ya/0wBL2gnbGhav0sUwDNNVyvUt5To9G5uHmNt6evH3BMp1X5tBaCWgoCZVKsECPAp+9WItQfOOfrgiG",
+	"Fxhvfc8/9iHp0N25yLjKJTC1NhuhdGOW8tLpNPFRl9Xjn1lmM23EEYm2taFlbWwnpD0JA7ahfFijVldC",
+	"tWtjX+trjwbk/0dcyD27U3BDCmmBD2pmywn8o0JsfhqhYzszpIHhA4jVRfFq2Dn8bp1d4fvv2mJ78DnB",
+	"SljTFsYuKMF8mDyaZQjeyGB8HBBS83g1F9UP976uyL7G7SVRSpz8j8LoizFXeeHBsXgM8EjzuluKcPMB",
+	"6exaGFAIp86bi43Oy0yqEZNqKJV0IpxkuFTeTqUE40bT1VptzKcIeiJRFftfZPYN4aVWaDx2B2Ydn387",
+	"9NuwqO3WzoNvTldZpJMNqbzJN1DKbBp2YILKXBSpERWPr3SsSoQKnKumHBU9TBoKZEN8jvS7BfG01WYH",
+	"tPO5tJt6vO6kRcJcG2iRSNbLyYSbWRvpUeLGXWRLbBtk8wi0Hh5lUz4K1lXPpAtu6evucj685Br7vTRX",
+	"EQF/KaxJeNrMIPJKiQVpjwJJ0Swt+Uhp62RmjxiPPqKrqDImSzcXG862lCbFQxumNDNaOxS7Bjy73ImM",
+	"lP4Bsqj18JFgqCShYFWUYIk5Ha36csR0YVM4L9GdSoq/o8iUzdsH11Ky0a0urQuK9h0mDnJ3u7+B5PM7",
+	"Do3kY6keZ/jormuujM54liEIpXlae73ej3/amjtU1IwboN7ebXy8s8BLtPTO+yFutua5R0EWF/HM7aki",
+	"Behd9IKltAt84Y47JT60TFua1yVQcDpiPcLncNXuwzFEd2sebyJQVkutLnF0TEtgGF3MBexKFghE6z2M",
+	"EGopQT2vdIR5ZQ190Zic1WXHTIlrbxmQlqVTijK/IOUqPaoiE9ClC5SuG3l7mk8D//XhGbhsistY1/tS",
+	"r/k1jXoWBo1+Oq7Hj749q6aqNu/Z46bhKg3z8z3YlBv2u/XGG3JZiPyiNi0vRq7UyiZFGlMWoCTL/5Rb",
+	"y7YqHyVmLXrX8XZ3ZWTBvCBxbwa1zYxZ92mNuiXW73aauanN4O5q+aJefUfF2Gs5a6pUn04NieX+FtG9",
+	"ee9XiPJtFO9LWZTtWnb4hQ0xUgpzZKXIGR86YZhUXglgW0ZQ7gz7tSeHlOn7v/8ry/0Q20dsj3gMH1ih",
+	"0Bpyt0DtNVymXwteuPGGBKy+gIFC60skxTyfrUmHad5Xv+2EJZzRy/MXxU/VdhhRVGKbC9qH3nHF6juU",
+	"BLNT4nX4JHiLDLN8MiUjYeSA/fxgLf/ru/n0917y+eMPrR7ZU+982lAHifxbwX1VmwJjmY/ctelAlyqP",
+	"Q6QSlhb62jtfx3I0Tit3aov6QG+3i9Hw8scK0evEk+vrO80yL1tp4O245qQStML+2q7V88qFssHxfCmc",
+	"yCjVTOXs+5LjzaQUOMrTxDjMFlunxdzcqWNpZqSTGS8ukCKkbItXlqHtVWFJc5aBMEq2Okjj9PwV29v7",
+	"4uDxzj4L74SqA0Frd/MBHDcX2V1Vwsbm7rKcAIuEze68imUhs1/ra5hjRga4AFxUvK/HM4B4d0kELp36",
+	"xZLIwXhXngwzegmWSfsDqN41HrDQLar96cnX7B/2WbU4un8Je9x9/OOf/s9/2j2/82TfL52s7cYnbK/3",
+	"ERMu4DEwdFjDwmVKll36xRNaGUD3opIfNxLmQyzdrQHL8ylNtVS/QdSzF4E+3BYesY7J5Xa3v7S1b/ea",
+	"W+ZfWd/hH+YYzNaOjvevNGdfgn/RcAte2jkDOSx/JK9E+1Abep99lOXCMOsrGPcgRPt40khajiHQLh03",
+	"jN/V7Uviazxv0K5PcDnS3MGETQLY+jffY+dtsf5h2OVrjer9PDCeU1L5R6J5nHHbuyUuv0kC1vN7RUGT",
+	"i46vL33IVK/79Em3BeVWDfxG3Li7o9b6+Uj3h0ltCFMdXeuFClubqzZBkRMpm7Ffs0GP/ZIN9n78080R",
+	"SxshFf53/1MVQJf2VfM9+Hf/xz/d/PgvbAskii8OPv98Z3+7GRFNI6P/Kpqik3SqcdfUzHBPz8No0adX",
+	"YUT87h/qYT8knVdYaqHNE/TtWDPDyZJaK2JHqJdVxxgqnM0YL6xmmGeR/m06p4ytW4GsqY39Lapje/u/",
+	"atfHXhuRSxQR7kYXmii3LqIlHVI316cI9TrP8c0F0rCaNsyr1X72tksdQ6Q25W9CKu87/HVVWDcpwM3Y",
+	"z9Ius8svykCluRIb2N7o+TtZ4OjVzc1tlH92l5tyhm+2yYpLrIFtXlYy0S2Y3hqAmN/cnJwRdnCLg3Zh",
+	"4Rtj4iqFt+nxJLscEKW8ablbyOVCIx3lctU+Wi+bEnrcVRmNjIlr3NRhwUcthvp0IAp9fYHBCmnCUj7Q",
+	"V6L+KG6c4VOq7IepOvh0oSktJ3z6Hn5SYoQOIPxbX8BeL6SqhyqVN5tcBAtUelsSYbupfzGkNrKJreT7",
+	"4bnonYva6t+q09fmMlAA9MBxqarwp3QoRVEI0x7cNBFcXWzozgw5Ei3aDlVl1ENmBJVHElHkDydXXX57",
+	"nOxcbtKi6XM6NfpGTmB82wgebDUYJh4Vwm0M91+6Mdx4YR0OdR8qvMxbfJztqVZX6MCkKx8Bdf5MIiRa",
+	"vBGrSYznopuRmBhlV13Uyk+wlnurKc42ypOuDjkND7Z7V6qf2wFBBbYW/bbPTtjTgye/Yr5wFyODiV20",
+	"NC4zplHWvVDOFzX1hTRlFa6XIAmdCu3t7QuItywW9plGVwovpK9zlvhiWy1Vy3z+75ocE7f6DF5uJVuq",
+	"jkpZWoyMTTmFubcYBfABL2WsqmaW/m7HS6E7p0CunWbfl9r55GhyHVEe/5Neb2n6a5s7Hub5+s2b14we",
+	"wFDcbuwuetLIZDvotUbEO+mKFiicj7VxzJIzPFCZcH9glNalOl84bt5z8/bsNKgGM9js/GCBdpdGHSJ3",
+	"vhRiKsyhf+bQ35DUk9JIW1gt7eCvYY+Rx3CFxbBxcQ5/WBNB3oTMZhlq9LXCB0MT25xb8P7clT9knP39",
+	"+auX7DW9BFxPUwKUzmcJS3dBLbS7/bLXe5wp/Ef4T5kuyon/Ku0rwM2T82/Q+J3SE9L/euhf5xPhH0dM",
+	"5nWlYBIIVsM57GslZM9C2sAGTphvtbkEiKDEktShbIW+Bvz0ABnL0Rg+kkFH5BWTnJP8jK8nqMQi6fsY",
+	"F9i9u7VawRdJLYvBjLUeXoUzboHyPRAsCIFeKhgUXF2yTBtDZvTtTbJ1m97nncXfFoBzFvO++XiiWmgi",
+	"aSD5uFyaCkSbKdKJj2za8G4SnccIp1xkaK9N2NQIi4k4VEJS1AFSoWB1tyV39dZKM1GNl6pa6kdWmskq",
+	"q/btSTBfhqdJHLZtytjLyJs5b5vfLBK4Wls1WVSsxi1BjsYyozAGH1dWhZWtaTKjAY+rl+nzmR/iQ/3F",
+	"XQxM9wH89SzBZLBdsAF/O54dsQByoKIeSixUV6cKlF73rxOyu8vPqvVUSrVxoropFeM2ykK9h0C7O1mo",
+	"1kmgDfnkm+bM3sGFNtVU9L3dbb1hIsBZqaiMQItkHHawxCzngLphU4MYAGF1Ko7x/AOhbmav1kW6Uj3D",
+	"2UHu6ST155PzbxDp7hpXuL6qVpseNn1ng0hEvdS0/hFEdHP781kZGZ5bEgVRhFp/uJDWeKs/b7MAwUYw",
+	"XwW56p4ud23Ge6iBk9SJJistl4AiNNYnzeNZlOyIIE+FCYFu64tDK7B8XUxqtfesDcC1SpUs9TSsj4EP",
+	"HGi7qYG/DWi1tX0hgnUJ9O7q1L4Dg/yU1DImfqveqvyPH0PZKnf9vDqwktwtIqFQzsxiJESDVFXpcyP6",
+	"2LKmJ5u5+irauYJS1htacr3uZC1d5QfMl0ZS7y1jaetULs6XROVEauUm2fG3c6YaU+tJot2tBOd6PQfu",
+	"geL9NZmt2wDaBsXzTJP5MAiQplT28NpIF3kcD43gNRM6rPOH8olUa8qZONFZqey3fmz6giY4o/HxK+QD",
+	"tkonwu+OaSJYbxB47tGXfoc0y+VpjA+DJPVx3pbktuSYG3TwE+DKAlBvCemIHo7B+0kR52OBjIr/orfF",
+	"CMGcuHGRu+aIKaxg4IwuWDbmhmdOmCqG3fEB8TqpBBsK786sI3j2g3VtSQjP7/v9m15vB/77BfznN/Dn",
+	"3rN+/+ZXz5ZUuHsDWu8dhe87pM2tLzwujRGl3mvra0pI6FqkctT321VvKzIjXJedY3MZtGVrrBAsXbOr",
+	"Vk7Fi9esG0EzJlUhU9rIrVlTeER3E1ADENczYMWI1WLG0hTPzx27lgVGCdV2kyNGjXi49RVSHfoa6UOZ",
+	"S8ec4bLofswB1iLcwSoBrq2PypJKsrSQNpjjLYxvdVniEcbY1tt5yneGxzvP3v3wxYed+OPBJh/39tsj",
+	"6962FgI6ZlgKqFRwFXVeefMmo93nGGXi//1uOp28m48AfLyyHOa/2fn3737YSx4vWU+zJNCGriUs9LO3",
+	"a3+/nyZUAwZGmc9NYedfJsxu3WyzX7Osx37Jsr0f/3TTkqTTWzdEf2/NBy+lym8P6MKnEpgeh267ON/U",
+	"6utcoBEadX1iopqxOvWXagtTYmXozkeGiJZCoY28bm5DSuaawphf3Wt60X96hu9/SDrzBZM2ZAdYY6g9",
+	"501p11qoesZ4XfGJrLuXcjoVeWvVp0VWUE4u+MBemJbB//Wf3//bs6/e14Uso6ogkdfSLgSstS3nowok",
+	"fFRodRxLHW03CeD2sG27it/GszeB81xw63Yo0deGokjdgKFA2i020Q2lORFZfX0+8gP3VR2Gdf6lPQpl",
+	"pbKx1vj2RPvYA987azCj/nkTXhRYRLycMD3sKz6wuijRLxkXZbG3HhxKShTTYftqrnoYNmxdqJ00VwUb",
+	"dORO0tnbvaH//n4f/53Rf/0ni//C5tbEsQrsL2n46vOpuvrd/Of9uS/+cf7z/APnjS+OcVnYlU9kpZFu",
+	"do5ltigLFXs2HpeUnzxHjY59r0qUcA8Z9XdkFKCAHN1HKHQZ8l97iJ0/vIboS41XKiIGQzaURAylBOUt",
+	"pdbaFGcU9dZu66aLh0N1woB84JJqtB87N6WGhlIN9eKWolgW8hHZhqO+VHil6lYRjdKm1a3CMpS2r3jj",
+	"5wW7cBKKOkhX9a+oS5tRFwqfxdJXVCSeCixj91hbV02VzncXsAmbFpryXK+EsdiawgfbWcQU39TTJuwf",
+	"joMznMrzNkSsvuqrR4+oyKbvveE7OnBHTQq6jx6xqPmib8eA1VyjvfRV1JAj9OFI2PVYZmPMfa5ageWG",
+	"X6uVHTr6akWLDoRBs0sHfDPXqaOvmq068PZRdetVfTvYXNsO9hU26qQDhalqKNdiiBFTwZ3v/QCUJBjf",
+	"U4TuL37BTqraa7avdih2iILnqB0oVgpU/FJcZDjrGxm+PXt2wh4/fvyUbaXEUQ5ZpTGl20lfMZjx7ZsT",
+	"phXTpZuWrstqyRwvMblAYXlqRKNi53uiSrYLK3rpa4DDj7723elXX32186snB4wYmO3Ssr1Ck3FjZuwl",
+	"f8lQcsd3ZkewnNBNvdnF3Bfh4l588UWBW5qOYLNwtlCWK+ocbrR22+j4Bo6aJgypOePMwq6VKHBHXgNi",
+	"xODgxgxBBWm0ZrdsK20TWQ4piT/d7sJSgiWgGgqAlBXaAgIAOyyKhFkKd6KGFyXAL+MuG8MpqhnNBmPV",
+	"HaFhtbmv8oIXJ9cZ0Z4KZkSwBuKIZQVW5gOtqaSBfEf0kdJ4YrgZzKnONb57ic2brcQ0De6EYb4mhmU8",
+	"z/0bdPSh9kxN/mxVucGG0g02CQWSkSyR0R8ggTewvm+HbA9Y/ucH7Pj85PSUFQI0BpuwXI4ATbEgQhfo",
+	"/QX85xD+s5MmtCVO8ZbUNdi/CvcL32VbJP6wtL7e6XaXvVUSK53CyN5WAqNF5hKOCD3EPBWPkFH/4lBG",
+	"gNhKXxEpTHev9lJmNIgaCpt5b8ADj310ACCJBOAq0VfasInGiqDIIGEh733X+Pdo83nPRobDKb/vq/c7",
+	"OzvV/+HBmJ2y9/FZsffo4keWlZCVAbkXFpjz78bMl71nz09fnGOk/ijUxXxPLxJTrlhLzFJopCbXZu+B",
+	"t1jHh8PWEYjf1MzGHlXRLFhWD9DJD0zcn71n+Ie0Dqk/LAxFNaRdMGoZKD0NjnDGxfXVVw2hAVvx+xbs",
+	"CHHfDCyfSOJrJL+LGycU4EVftcgYh4z7oxzrAiP3Hj0CfNZKPHrkRc4J9fGZkL4VdtJX0uISRM7EDYi+",
+	"0hWYIG0EdRT3RWtsRTvg6cBdC+EEtujvq1dToY5fn7IgsoXgoIkvKs39Xa13DqSxluYO2Xfv0r7aCuM8",
+	"7vYYLwp9bf3tI0BpVczwGr6Cl/YRuvDK6ZfAvRScFMlaFqjiMZus10ecoCctO+jtHRFvkOFbT9JBevKQ",
+	"ogXh04+7LN0dY7GaPwKR2MV6N/TnRDgjs9DbYldPheJT2Z3xSZH2FTJ5pf0kW2kAHAJiO1AAbMpSoTtl",
+	"bGDTMbYQk7+VLmuxnSYEFN5XqY9OBpLUEjnf0v97IaoYqLEPLB7o3HMNkFOwV/rT3t7KoGPRHSG7Sncr",
+	"6XR3v1miMGVbab/T72CdGnjzeqwLen/7iGY/Of+GZaIoYNq1w5gTlqoUB9zbGXDgi9PxzGJREbRNb6FM",
+	"xxg1kWeIGUqwve1gjvIT/Wo3yFSpX04V6ozruS0+Ogz3fSnM7BBrUMDaptyND2VOXCalRRye5mIy1U6o",
+	"bLbzWzFLYZGAfJW9diItCJLKB13HoMeBSLKVNpgeDDEwS+wr3fVX7UVAD2ZnyvGbxOdpgJrimSmxtSup",
+	"C0+NgWEd9HpHcXt5afvqOuo8PyhXt5xnWyDoe494VEY5SBd9BTgHjL5C21CkiTMjsCC0rGHELsUMha6D",
+	"/X1gcE96PdITgG70VZ/ygRQvCJX6naqZfVonZKRH3mYCktgIFuJvsBeJCg1X+KVGag+TecmVrGBV6oe0",
+	"DXZe6S4kpQWm28zuANEzBp9WAuXFYGggCQup9qWYOp/uXchM+Lhuso13QEg0UrhQppdSNGJtksJIrHev",
+	"d3vdng+tABrVOew87va6j8k2PEbFO1A5+Hsk2oy4yl6DHLPf68GtK0RI0siEtUi0CnkluuwlyimB8nWr",
+	"mCyp1WneOez8nXBf+6nmHGH7vZ7P6XShH2hE8f7g41rpot5mnPI1zlD1ntsHLhOg8YTmaxumWtduqEJK",
+	"7bNiq0Xn8Lt3aN+icpCd5/JKKIFGSodpm9/VO7dk8Ag8YymQXxsN91+Ulrxw4maqfaQ7KV7z8D2iRzCv",
+	"BJknyJHAfdy1Npdky/JxMpY5U1pHd2rhTF74ld16JrCu3WnB5dxpzFuhFwDvZ3gI0Edgm1T7WHoIMade",
+	"ehJvxoIFYaVSiiIqcc0tG5SyoLLta117P9xm1z4scgNAx0sHOSssP2H/ePzi+UPA/02sOq4CPYlPa9IY",
+	"b9zOuePAzxn3vwZji2dZwC9LY3CDT3qP+6q2v8+fSvvVP6NF/UWoEc6NfRiE+QiyBG89vv2tc+LKbxW/",
+	"4pLcAKuOlbrr3ELSrvZ26+jU1lN99AjNsYePHs1bYBdUOW2C6oJMlcJrmBKYzDWUxmLp9FwYaq+TRiFt",
+	"KVoqvCjr2b5ig1lfpTKPf+yyZ7JAlTzTkwGIgCgrHb/88oilgMwomGIDZSu9wS11Ou2rqiJnwgbajYHW",
+	"NlbQZb+lxn5TPvL9dQ6paC6xSnEldWn7aspH4jPL0qiQfcq4RWjg3z59VlCTlyEt92juBZDF2kvrs2Pf",
+	"WhA2orHl4BHKGk1rWC7IGatNX7nQNnvCcw8QRKMweUL6UK8NhZ5L605CyG8lK1t03QOX6KAkHGIIDptB",
+	"ieshUOzl/5C0D1tHxNzfmFUg5f0NWeWYrjdkI9J42ZhRxPBag0aByAsl1LgpJGBb42YnNT5gOGvLGgBz",
+	"GgtYJ7hmcf7n3LXMXmHestmdvoe5X/ORYFb+ceksoaBgPZH3J3QOn/SilMj9RhZkS4rH4tzAtJv4XeVU",
+	"E9mouma0LazqhrH2pbLI0t89INOr+5y08L1XSuCGYJfEA5D3HazD+37Dq3pu+Mre7a+8VdzbTUVOL63B",
+	"LZ9pM5B5LjAa4GD/6e1vvNH6BVczvzr7F+LmFf8+oTo20vqO0oGHe379LuksGBsxqnatQNom89/9QeYf",
+	"HkACwMg20r+H0nXZKXGpyvenVSaSml/6bo+AFTmTqq/SZkMe3zFWWu+uMaKqqtsuG1KGygJbazuY+hG6",
+	"+qdfdh4ev5bJ/76Vy08bpXoHt7/xUrtnulT5XysOHoeE2dA7CD3o3hFPcbO+99RDY+cu+kDWwtHVOBlM",
+	"XRlI4jkTV6Aa84EuXRQGFpQ0U6qE6SKvBHjvUIgcMmg8mk6Fyne0KmarMPEYt/CTREdc2nO9VCNHMNmf",
+	"UfIngJLR1UPXVeaJfMBAj0zLMHADlJsW2nWnFM32EJwR1EOYA7VHnMxejYDJWcbZ65d/x+QEpMYVGPW6",
+	"0O71y797SJzCNex6KLTI6AOpOMkn61i2cJc/Y9FfHIvg4kTokzC6RQ/OxcItfwCUOq/CNOse0qHyDJtw",
+	"cyny7SSEwWFnZdo5xsNVxS/7asBVToImr9qVsSlXomBYfRFZIKFm5SjiZPBHV05fKT6RahTGr+L3othA",
+	"GN2r/beh9/k3nwC97dXolzd3MlX/jNA/UYSme/PwCF3H92A9NW03Qep5HD5dCESFPZVT5jTb66G/2EeN",
+	"RRGwfsMYDwGCel/x+TqahM1ZS0se7lhaf5+yLW8TohjSEFy73WULLuUuex3FNvGoDUm1Oq5mIfATTbRj",
+	"5OyoQ1yPufNRPDaU+NMmEIWjRpJKX2FTPot2ayJNKVbaTJnls+DappDJAoPFSmdl7itU+aBikfcV1lmD",
+	"aZCQMU7qi7c4ezWHAiSxFX8dKeznQfd9Xx30nrZRLcrpi4DykXQLEes3Op/dm5S/WDr8QzP7AVO3HlDN",
+	"aKnUvcS85uOoMbQc7zwWTwvhC75w2v9nZLe3Btk90WpY+DrbB3trrOk1nxWa52+0fs7NSNB7T9YBgC2n",
+	"1PnthcglfzOjnMCD/f11XvahFUCpv1JOutlfrRlyrvv5MMT6xFaPmAusyWNW8BRT1eu7nZ2slglf6CuU",
+	"zoi8Yb7AfCdTYC1paE9KA4QOpRgc2FdkKyE3YF0KkGq1+ZQgKt/Xln7KqMicVCPM8FhVfs0HCXNYAIyd",
+	"sq2D/f2KKGsltrvsuMFQsN4lK7QaCbO4M3T6PT1sadXaV2fClUbZ2OaDqSVKXxPztG0knmol3IdZ9f6J",
+	"e7Nk3ycm7EvNuWdVXcififXPxPrBjWMLofH3bR+LmkDdqr/P2bsKcg5X7cn0kALzq6DRwQx9P8uiFF74",
+	"qR8QjaPeWEv0Xb//n/2d9393iyJKFGrelVjWiPqFtV5gXlXwuV16iG4oNTzHJrRUHSNqpLfXZa+1pULu",
+	"ivLQ4G98mDKNQNHL5XAoDKqXKGmA+jR/58PQ1K7zJvpla7+3t33UVwJDOEy9dWDHPpXTpxwju46lkmoQ",
+	"iQ7WvvIWLlhbvXRxwzNXzHy4UWNdn9mq+Cfqrn0VFqq82ktyDskMoBvu93rbXfZmbIQd6yK3rBBDx1BO",
+	"GfZVWiejpphLGfl3P7NVHmfI7WxUZLBjfY1bKAqqOcp8b7Uo0ZHqbeD+JOi+PjAd5KXt5arpixAP9BDi",
+	"R7NV3ScWP0KrvUWaRUFNGS9CnPzcyR9VJ9zoFvkh6ewTqXrg9RHa+fPTptE+ktIsEFjPdbakS9Br7sYh",
+	"2iYwkjTiVLs/wLX5gIVJmgeSrLJ1/sSltZ+Fr5+gpozIU1Ej7MfA8XrHIg+VaNiUmTWlL3+n70EIS0L5",
+	"F10F3gxmoIDSz+nyfAOipG0Bo1PuxnVwW9XzdBnqbRKSOU877FRkciiziJxFNG6uJX9b6F1Ul7he0crY",
+	"v3d/ETJei54/O1v+8pj+SoXTuDsqm3Jtj0mUtr3g88SqI6FW+1ZUVKRuuuF9Jtsoww0lJupGhaf7KqT4",
+	"VYF4VU0Rn5oRkQupKBbdcGV5RkHynO339vpqIriyUa61T0QOWc1U/J9sXyqqFUE5roPS0W/BvlVnUXph",
+	"VhusWGXZFiwAKwkkjBdF1JNNfF/yImFOazYU131F5Qa2yWcji8J7bpJQHsBXwIqtck1/xyEz/Lqvcu54",
+	"HXboxgYLz13zWZedxjm6bOvg5mY71ILxghUe1FlZCMsGYqZ9SqNPf0GJ9TBOrpyUNpS6oAAz+Agwrc8p",
+	"1DAr1VEQgQEklaOZ+66aBR+IAoOzuLEYbNlXW2ahLQsbaUoETitIpnRZ3LUOJRt8TQg7hiPjWKmlNgsf",
+	"+TvGZN6Qz+Oy5pQz/QsWJc321blQORZjaObROs0moDQY4dC9bvlQUHoGlTkB1KjLQkVtFKzP85rg8i/F",
+	"lEphcscKwa1j+wdsrEtjyYdftfECbUONhJkaqVxIbD7/+nhn/8nnWNbC2UZzBAoaQFbiS6CEiLm+Mvya",
+	"Uq8HMyeoPMY56ImXYpaEjJBqroSi6iq/Tsjbz+lKPHpETYE5lqMIp/PoEaWvgjIWnI2oPs5lnuAq0FkY",
+	"pGdf7YWyi2Oon4lpwWc4rSlFikVDrcjgsgLS1j7P5naCxuviPR1ifm/8YJRx2txuhZdSsWEhR2N36LP0",
+	"cOprjhBleIag2tJdd1ELNycnAj2WIWXI4E5AR0XRZiQcGsFhlC3a95lwZrZzPHTCpNtMwunWWTVDqaQd",
+	"oyFfoiVqB+hWmAyumKcZgOkwwRNA+Op17IMMd+NSzKobf3L+DdtKMfMys1fpdl8BL2vU3xA3ID/Dk11G",
+	"lQtP6LrtgDB9yKqXA+LDnfWp8L5yS6Ynou6gRXezls5YSuQlTVhaT4xVtBpZWFuBcREBSEP6acq29JRq",
+	"3GwfeS97Oi/owOqAhkbTIjUbCC+Fsa2DXm+7kkXxgkrL3r55tvMF2wKyRb2tAHV20MeJgTuY0YVlavLt",
+	"BCsZHOx90eurLb913wkLG+/l/nb3O+kRe/4Mjujk7PkzqhYgVG63u+y5VMJ6eo8Xsq+qUi/ojvlFGvz5",
+	"dDwYPgCEJ5QKpC5bWHEg/qFL+6JLThlYOK+nKHRgXXaChQ9sZfCkvlhqRm5dX9aFqiNgTRTfyOd9HdVg",
+	"9DV8JKKLH+bqvVQ1Xy6lwnotM2HZe5aGEVL8gO+noXwKEer64cBuoq7f7V/i68gn6peJAzVepSIHvghM",
+	"s6ZEeEvpCVC7+Yanf/6n/856cyNUZR6ql3V7o7TlP+A4BIQLiSBRup6l5mlzOw3F2RdemGtMnFBhH8F6",
+	"bIseIQlpb5uKzewwcvTTaoBXGn3dZVXftFB1aIo2GfjRNik81qKojg3x1Z9CLAiSiQ0RMVBIwV1zkOZx",
+	"bAelENnI3AwRvLa8ZBnVssBp5maIILbdZWf6mu4583USGLd1g10YiYIbAD7UlAjxIJ7XNyaVdV0HNUMs",
+	"kJZxf2yNkmSlFSztYpZmLjI54QXDnoZYuiLQNSTCCqlUutd9InYep9sJU5pqbunScpVbZgVQN6cxo/Ml",
+	"fwkE9VQN06pWRSEvRVwuisJ5qchVBREMxLHoclVYFsRzGiyb0szzBCKLOcYYj6+vP7MMcLqirHiz6HUV",
+	"V8/JSw/SPICQSA0PZXdqGNLvvmoawNGLxzV7V1Ur5KpOGFcRTfO2DiB2MIZ3SONDB72nn5MsFBXdQLk3",
+	"Yb6x5CbNLhmqQG3PY7EUujMIY0rNABhj3RWC49af/+m/USRZJf1S9UZPWIlsaYPFxHzcDbzypNfzkjB9",
+	"joPRaN5zX4IFtAFf4VF41QwEAOR1WOMBY8CUVjtEE0h+9DULGSv4DOWZgaa+gqiPkFUmqszymcVBKQfY",
+	"RM4BrHtnfGkgqr3IQhABlnkiwHW73TRAn7JCbnAvh32Vpmlf/cJLJDRxRDunY+008vadPbblGeQiI9zu",
+	"K7ikSVBJSFtrUvVAwJMKs5NAJzDgDQ8kURKeF8nzvaTXfZL0ur293n6SrHyi9/SL9if2k71uD57Y7z1p",
+	"f+Jxsk9PHOzt4RN0B8LvCb78pJd8u9PrHewveWDv8WN64HGy7wG6xCNxVqqN4ygiuf23YtZZNIvBzcCb",
+	"tlX3ABwLtU1Kj1cz0dG6xCj2kXnTm6wmulo1n122rntIPV93bQs9AIOUnFTlNJetcq5Rz0dmNddLrORv",
+	"WJ0GFuK75QegLFtQ1FVtPaDVvZkeLFanjCIwk05Qb5oDLAIC+TcVtMyJRN7eMnoNP9zefe4rdLZYYsTF",
+	"Bpg+u45CLYhuUpbsFkiNnlYbr5P31YKBJGHXon7Js4ZgKgjqqneERk60No2/pVAzmgBCBRdpg/biZ6v8",
+	"tHqIzvDKXU06ctMEAWrwOn63qnD7h2RNVx+6VUrlfX2mVBQ7+LOb72c330NnWmiLJYQ9Ig+xFmhA5jjO",
+	"qlwVDBv3vmrxDGyQkb/cOxDoTQj8qFrZHuKKg+hOUSW1bcErpBj7GkwM/jtvfSP9zYhMyCvhk6VqGCwr",
+	"1HQHWeesVA+d+QvLWk6rf/a2/RSS8Btdo+8Dxajm73rutzg9ydoS48kNV7mehPKwlXthb/8LNpDObtds",
+	"EJsh+vLBPnmeej1RmSrisDVPVcXsqFHhm1xJKAEChnmnRF+NuR0j3pFPqtAjy6RbHvv0xneCeghprtEu",
+	"6hNLXI1uYkvwGI8pqYs4+AOg/lGgk/7Usfxntv7wVAZxO9TqjmiMJxVrevXp6Yp756IQbX2IltCXM6x4",
+	"beMmZ9I1zWa9ve3ay+MjSH1OGEZKVk070CJXYMnGtkraB22k4ktcbiAVt8f2yPzOkT2+//QiZz9YhBaB",
+	"5efIl58AltBRfASaNAtWNlsGffcO7oMfcf4SnC521mltp8O2ou4S290o1KvEbuwLTTN9MYD53jsWawVI",
+	"E1f7wY4E3UbhNpD5FwddksfsMbNhB43Hi9PoFged68ET9zhsxLOJ65aXKYYaA4FD84Mgo0gT9Q5i2DpI",
+	"inhZIbKpZdTXp75/Qjeu5odXoaU6oK+xHIKT8E9f8tf7T6JKtN15CxaB5d2H/xcAAP//",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
