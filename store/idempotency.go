@@ -30,15 +30,15 @@ func errKeyReused() error {
 	return &Error{Kind: KindInvalid, Field: "/headers/Idempotency-Key", Message: "Idempotency-Key reused with a different body"}
 }
 
-// querier is what storedRun needs of a pool or a transaction.
-type querier interface {
+// rowQuerier is what storedRun needs of a pool or a transaction.
+type rowQuerier interface {
 	QueryRow(ctx context.Context, sql string, args ...any) pgx.Row
 }
 
 // storedRun returns the response stored under (tokenID, key) with Replayed
 // set: KindNotFound when the key is unused, KindInvalid when it was used with
 // another request hash.
-func storedRun(ctx context.Context, q querier, tokenID, key string, requestHash []byte) (*RunCreated, error) {
+func storedRun(ctx context.Context, q rowQuerier, tokenID, key string, requestHash []byte) (*RunCreated, error) {
 	var hash, body []byte
 	err := q.QueryRow(ctx, sqlSelectKey, tokenID, key).Scan(&hash, &body)
 	if errors.Is(err, pgx.ErrNoRows) {
