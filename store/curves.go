@@ -205,15 +205,47 @@ func (db *DB) ListCurves(ctx context.Context, f CurveFilter) (*CurvePage, error)
 	return page, nil
 }
 
-// ExplainListCurves returns the plan PostgreSQL chooses for ListCurves(f),
-// one line per row of EXPLAIN (without ANALYZE: nothing is executed). It is
-// for diagnostics, tests and benchmarks.
+// ExplainListCurves returns the plan PostgreSQL uses for ListCurves(f), one
+// line per row of EXPLAIN (without ANALYZE: nothing is executed). It shows the
+// generic plan, the one a long-lived prepared statement may settle on and the
+// worse case for index use, because the parameter values are hidden from the
+// planner. It runs on a connection taken out of the pool and closed after, so
+// its session settings and prepared statement go with it. It is for
+// diagnostics, tests and benchmarks.
 func (db *DB) ExplainListCurves(ctx context.Context, f CurveFilter) ([]string, error) {
 	sql, args, _, err := curveQuery(f)
 	if err != nil {
 		return nil, err
 	}
-	rows, err := db.Pool.Query(ctx, `EXPLAIN `+sql, args...)
+	values := make([]string, len(args))
+	for i, a := range args {
+		switch v := a.(type) {
+		case string:
+			values[i] = "'" + strings.ReplaceAll(v, "'", "''") + "'"
+		case time.Time:
+			values[i] = "'" + v.UTC().Format(time.RFC3339Nano) + "'"
+		case int:
+			values[i] = strconv.Itoa(v)
+		default:
+			return nil, fmt.Errorf("store: explain: unexpected argument type %T", a)
+		}
+	}
+	pooled, err := db.Pool.Acquire(ctx)
+	if err != nil {
+		return nil, classify("explain list curves", err)
+	}
+	conn := pooled.Hijack()
+	defer conn.Close(context.WithoutCancel(ctx))
+	for _, stmt := range []string{`SET plan_cache_mode = force_generic_plan`, `PREPARE ck_explain_curves AS ` + sql} {
+		if _, err := conn.Exec(ctx, stmt); err != nil {
+			return nil, classify("explain list curves", err)
+		}
+	}
+	q := `EXPLAIN EXECUTE ck_explain_curves`
+	if len(values) > 0 {
+		q += `(` + strings.Join(values, ", ") + `)`
+	}
+	rows, err := conn.Query(ctx, q)
 	if err != nil {
 		return nil, classify("explain list curves", err)
 	}
