@@ -16,8 +16,9 @@ import (
 const (
 	// codeImmutable is raised by the schema's triggers when a statement would
 	// change or remove evidence (migrations/000001_core.up.sql).
-	codeImmutable       = "CK001"
-	codeUniqueViolation = "23505"
+	codeImmutable           = "CK001"
+	codeUniqueViolation     = "23505"
+	codeForeignKeyViolation = "23503"
 )
 
 // classify wraps err with the operation that failed. A database that cannot be

@@ -6,6 +6,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"slices"
 	"strings"
 	"time"
 
@@ -150,6 +151,7 @@ func checkRun(in *RunInput, curves []CurveInput) error {
 			}
 		}
 	}
+	in.Samples = slices.Clone(in.Samples) // the dilution default must not write into the caller's slice
 	for i := range in.Samples {
 		s := &in.Samples[i]
 		p := fmt.Sprintf("/samples/%d", i)
@@ -333,6 +335,10 @@ func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (
 			return err
 		}
 		if err := tx.SendBatch(ctx, batch).Close(); err != nil {
+			if pgCode(err) == codeForeignKeyViolation {
+				return &Error{Kind: KindInvalid, Field: "/method",
+					Message: fmt.Sprintf("method %q has no revision %d", in.Method, in.MethodRevision), Err: err}
+			}
 			return classify("insert run "+runID, err)
 		}
 		return nil

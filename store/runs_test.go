@@ -246,8 +246,10 @@ func TestCreateRunRefusesBadInput(t *testing.T) {
 	t.Run("unknown method revision", func(t *testing.T) {
 		in, curves := runInput(m, baseTime)
 		in.MethodRevision = 9
-		if _, err := db.CreateRun(context.Background(), in, curves); err == nil {
-			t.Errorf("CreateRun with method revision 9 succeeded")
+		_, err := db.CreateRun(context.Background(), in, curves)
+		wantKind(t, err, store.KindInvalid)
+		if got := err.(*store.Error).Field; got != "/method" {
+			t.Errorf("field = %q, want /method", got)
 		}
 	})
 	for _, table := range []string{"runs", "readings", "run_samples", "curves"} {
