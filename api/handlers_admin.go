@@ -1,0 +1,194 @@
+package api
+
+import (
+	"context"
+	"net/http"
+	"slices"
+	"time"
+
+	"curvekeeper/api/oapi"
+	"curvekeeper/calib"
+	"curvekeeper/store"
+)
+
+// CreateMethod stores a method, or a new revision of it when it changed.
+func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestObject) (oapi.CreateMethodResponseObject, error) {
+	p := mustPrincipal(ctx)
+	b := req.Body
+	in := store.MethodInput{
+		Name:       string(b.Name),
+		Model:      calib.Model(b.Model),
+		Weighting:  calib.Weighting(b.Weighting),
+		Confidence: 0.95,
+		Acceptance: policyFrom(b.Acceptance),
+	}
+	if b.Confidence != nil {
+		in.Confidence = float64(*b.Confidence)
+	}
+	seen := map[string]bool{}
+	for i, a := range b.Analytes {
+		if seen[string(a.Name)] {
+			return nil, store.FieldError(pointer("analytes", i, "name"), "analyte %q is listed twice", a.Name)
+		}
+		seen[string(a.Name)] = true
+		in.Analytes = append(in.Analytes, store.Analyte{Name: string(a.Name), Unit: string(a.Unit)})
+	}
+	m, created, err := s.db.CreateMethod(ctx, in, p.Actor())
+	if err != nil {
+		return nil, err
+	}
+	if !created {
+		return oapi.CreateMethod200JSONResponse(methodOut(m)), nil
+	}
+	return oapi.CreateMethod201JSONResponse{Body: methodOut(m),
+		Headers: oapi.CreateMethod201ResponseHeaders{Location: "/v1/methods/" + m.Name}}, nil
+}
+
+// ListMethods lists the latest revision of every method.
+func (s *Server) ListMethods(ctx context.Context, _ oapi.ListMethodsRequestObject) (oapi.ListMethodsResponseObject, error) {
+	ms, err := s.db.ListMethods(ctx)
+	if err != nil {
+		return nil, err
+	}
+	out := oapi.ListMethods200JSONResponse{Methods: make([]oapi.Method, 0, len(ms))}
+	for i := range ms {
+		out.Methods = append(out.Methods, methodOut(&ms[i]))
+	}
+	return out, nil
+}
+
+// GetMethod returns a method's latest revision, or the one asked for.
+func (s *Server) GetMethod(ctx context.Context, req oapi.GetMethodRequestObject) (oapi.GetMethodResponseObject, error) {
+	var (
+		m   *store.Method
+		err error
+	)
+	if req.Params.Revision != nil {
+		m, err = s.db.GetMethodRevision(ctx, req.Name, *req.Params.Revision)
+	} else {
+		m, err = s.db.GetMethod(ctx, req.Name)
+	}
+	if err != nil {
+		return nil, err
+	}
+	return oapi.GetMethod200JSONResponse(methodOut(m)), nil
+}
+
+// policyFrom fills every threshold the request leaves out from the engine's
+// defaults.
+func policyFrom(a *oapi.AcceptanceInput) calib.Policy {
+	p := calib.DefaultPolicy()
+	if a == nil {
+		return p
+	}
+	setF := func(dst *float64, src *float64) {
+		if src != nil {
+			*dst = *src
+		}
+	}
+	setA := func(dst *float64, src *oapi.Alpha) {
+		if src != nil {
+			*dst = float64(*src)
+		}
+	}
+	setF(&p.BackCalcLowTolerancePct, a.BackCalcLowTolerancePct)
+	setF(&p.BackCalcTolerancePct, a.BackCalcTolerancePct)
+	setF(&p.BackCalcMinPassFraction, a.BackCalcMinPassFraction)
+	setF(&p.MaxRSEPct, a.MaxRsePct)
+	setF(&p.MinRSquared, a.MinRSquared)
+	setF(&p.OutlierCooksD, a.OutlierCooksD)
+	setF(&p.OutlierStudentized, a.OutlierStudentized)
+	setA(&p.HomoscedasticityAlpha, a.HomoscedasticityAlpha)
+	setA(&p.InterceptAlpha, a.InterceptAlpha)
+	setA(&p.LackOfFitAlpha, a.LackOfFitAlpha)
+	setA(&p.MandelAlpha, a.MandelAlpha)
+	setA(&p.RunsAlpha, a.RunsAlpha)
+	if a.MinLevels != nil {
+		p.MinLevels = *a.MinLevels
+	}
+	if a.Mandatory != nil {
+		p.Mandatory = make([]string, 0, len(*a.Mandatory))
+		for _, c := range *a.Mandatory {
+			p.Mandatory = append(p.Mandatory, string(c))
+		}
+	}
+	return p
+}
+
+func methodOut(m *store.Method) oapi.Method {
+	pol := m.Acceptance
+	mandatory := make([]oapi.CheckName, 0, len(pol.Mandatory))
+	for _, c := range pol.Mandatory {
+		mandatory = append(mandatory, oapi.CheckName(c))
+	}
+	out := oapi.Method{
+		Name:       m.Name,
+		Revision:   m.Revision,
+		Model:      oapi.Model(m.Model),
+		Weighting:  oapi.Weighting(m.Weighting),
+		Confidence: m.Confidence,
+		CreatedAt:  m.CreatedAt,
+		CreatedBy:  m.CreatedBy,
+		Analytes:   make([]oapi.Analyte, 0, len(m.Analytes)),
+		Acceptance: oapi.AcceptancePolicy{
+			BackCalcLowTolerancePct: pol.BackCalcLowTolerancePct,
+			BackCalcMinPassFraction: pol.BackCalcMinPassFraction,
+			BackCalcTolerancePct:    pol.BackCalcTolerancePct,
+			HomoscedasticityAlpha:   pol.HomoscedasticityAlpha,
+			InterceptAlpha:          pol.InterceptAlpha,
+			LackOfFitAlpha:          pol.LackOfFitAlpha,
+			Mandatory:               mandatory,
+			MandelAlpha:             pol.MandelAlpha,
+			MaxRsePct:               pol.MaxRSEPct,
+			MinLevels:               pol.MinLevels,
+			MinRSquared:             pol.MinRSquared,
+			OutlierCooksD:           pol.OutlierCooksD,
+			OutlierStudentized:      pol.OutlierStudentized,
+			RunsAlpha:               pol.RunsAlpha,
+		},
+	}
+	for _, a := range m.Analytes {
+		out.Analytes = append(out.Analytes, oapi.Analyte{Name: oapi.Identifier(a.Name), Unit: oapi.Unit(a.Unit)})
+	}
+	return out
+}
+
+// CreateToken issues a token; its secret is in this response only.
+func (s *Server) CreateToken(ctx context.Context, req oapi.CreateTokenRequestObject) (oapi.CreateTokenResponseObject, error) {
+	p := mustPrincipal(ctx)
+	scopes := make([]string, 0, len(req.Body.Scopes))
+	for _, sc := range req.Body.Scopes {
+		if !slices.Contains(scopes, string(sc)) {
+			scopes = append(scopes, string(sc))
+		}
+	}
+	id, secret, err := s.db.CreateToken(ctx, string(req.Body.Name), scopes, p.Actor())
+	if err != nil {
+		return nil, err
+	}
+	out := oapi.CreateToken201JSONResponse{ID: uuidOf(id), Name: string(req.Body.Name), Token: secret,
+		CreatedAt: time.Now().UTC()}
+	for _, sc := range scopes {
+		out.Scopes = append(out.Scopes, oapi.Scope(sc))
+	}
+	return out, nil
+}
+
+// DeleteToken revokes a token; the next request with it is refused.
+func (s *Server) DeleteToken(ctx context.Context, req oapi.DeleteTokenRequestObject) (oapi.DeleteTokenResponseObject, error) {
+	p := mustPrincipal(ctx)
+	if err := s.db.RevokeToken(ctx, req.ID.String(), p.Actor()); err != nil {
+		return nil, err
+	}
+	return oapi.DeleteToken204Response{}, nil
+}
+
+// mustPrincipal returns the authenticated caller; authMiddleware guarantees
+// one on every /v1 route.
+func mustPrincipal(ctx context.Context) Principal {
+	p, ok := principalFrom(ctx)
+	if !ok {
+		panic(newProblem(http.StatusUnauthorized, "no principal on an authenticated route"))
+	}
+	return p
+}

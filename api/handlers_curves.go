@@ -1,0 +1,231 @@
+package api
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"net/http"
+	"strings"
+
+	"curvekeeper/api/curveplot"
+	"curvekeeper/api/oapi"
+	"curvekeeper/calib"
+	"curvekeeper/store"
+)
+
+// ListCurves returns curve history newest first, one keyset page at a time.
+func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObject) (oapi.ListCurvesResponseObject, error) {
+	q := req.Params
+	f := store.CurveFilter{
+		Instrument: deref(q.Instrument), Analyte: deref(q.Analyte), Method: deref(q.Method), Cursor: deref(q.Cursor),
+	}
+	if q.Status != nil {
+		f.Status = string(*q.Status)
+	}
+	if q.Verdict != nil {
+		f.Verdict = string(*q.Verdict)
+	}
+	if q.From != nil {
+		f.From = *q.From
+	}
+	if q.To != nil {
+		f.To = *q.To
+	}
+	if q.Limit != nil {
+		f.Limit = *q.Limit
+	}
+	page, err := s.db.ListCurves(ctx, f)
+	if err != nil {
+		var se *store.Error
+		if errors.As(err, &se) && se.Kind == store.KindInvalid && strings.Contains(strings.ToLower(se.Field+se.Message), "cursor") {
+			return nil, newProblem(http.StatusBadRequest, se.Message, ProblemField{Pointer: "query:cursor", Detail: se.Message})
+		}
+		return nil, err
+	}
+	out := oapi.ListCurves200JSONResponse{Curves: make([]oapi.CurveSummary, 0, len(page.Curves)), Cautions: calib.Cautions()}
+	for i := range page.Curves {
+		out.Curves = append(out.Curves, summaryOut(&page.Curves[i], nil))
+	}
+	if page.NextCursor != "" {
+		out.NextCursor = &page.NextCursor
+	}
+	return out, nil
+}
+
+// curve returns a stored curve, from the cache when it is there. The cached
+// copy's fit is exact (fits are immutable); its review status may be old, so
+// callers that report the status use freshCurve.
+func (s *Server) curve(ctx context.Context, id string) (*store.Curve, error) {
+	if c, ok := s.curves.get(id); ok {
+		return c, nil
+	}
+	c, err := s.db.GetCurve(ctx, id)
+	if err != nil {
+		return nil, err
+	}
+	s.curves.put(c)
+	return c, nil
+}
+
+// freshCurve reads a curve from the database and refreshes the cache.
+func (s *Server) freshCurve(ctx context.Context, id string) (*store.Curve, error) {
+	c, err := s.db.GetCurve(ctx, id)
+	if err != nil {
+		return nil, err
+	}
+	s.curves.put(c)
+	return c, nil
+}
+
+// GetCurve returns a curve with its fit, checks and limits.
+func (s *Server) GetCurve(ctx context.Context, req oapi.GetCurveRequestObject) (oapi.GetCurveResponseObject, error) {
+	c, err := s.freshCurve(ctx, req.ID.String())
+	if err != nil {
+		return nil, err
+	}
+	return oapi.GetCurve200JSONResponse(curveOut(c)), nil
+}
+
+// CreatePredictions converts unknowns' responses into concentrations with
+// intervals and flags.
+func (s *Server) CreatePredictions(ctx context.Context, req oapi.CreatePredictionsRequestObject) (oapi.CreatePredictionsResponseObject, error) {
+	id := req.ID.String()
+	c, err := s.curve(ctx, id)
+	if err != nil {
+		return nil, err
+	}
+	status, err := s.db.CurveStatus(ctx, id)
+	if err != nil {
+		return nil, err
+	}
+	r := c.Report
+	if len(r.Coefficients) == 0 {
+		return nil, store.Errorf(store.KindConflict, "curve %s could not be fitted (see its checks), so it cannot quantify samples", id)
+	}
+	conf := r.Confidence
+	if req.Body.Confidence != nil {
+		conf = *req.Body.Confidence
+	}
+	out := oapi.CreatePredictions200JSONResponse{
+		CurveID: req.ID, Analyte: c.Analyte, Unit: c.Unit, Confidence: conf,
+		CurveStatus: oapi.CurveStatus(status), CurveVerdict: oapi.Verdict(r.Verdict),
+		Cautions: calib.Cautions(), Results: make([]oapi.PredictionResult, 0, len(req.Body.Samples)),
+	}
+	for i, sm := range req.Body.Samples {
+		d := 1.0
+		if sm.Dilution != nil {
+			d = *sm.Dilution
+		}
+		pr, err := r.Predict(sm.Responses, d, conf)
+		if err != nil {
+			var ie *calib.InputError
+			if errors.As(err, &ie) {
+				return nil, store.FieldError(pointer("samples", i, ie.Field), "%s", ie.Reason)
+			}
+			return nil, fmt.Errorf("api: predict sample %d: %w", i, err)
+		}
+		out.Results = append(out.Results, predictionOut(string(sm.ID), pr))
+	}
+	return out, nil
+}
+
+func predictionOut(id string, p calib.Prediction) oapi.PredictionResult {
+	res := oapi.PredictionResult{
+		ID: id, Flags: nonNilS(p.Flags), Readings: p.Readings, MeanResponse: p.MeanResponse,
+		Dilution: p.Dilution, IntervalMethod: p.Method,
+		Interval: oapi.Interval{Level: p.Interval.Level, Bounded: p.Interval.Bounded},
+	}
+	if !hasFlag(p.Flags, calib.FlagNoRoot) {
+		res.Concentration = num(p.Concentration)
+		res.StandardError = num(p.StandardError)
+	}
+	if p.Interval.Bounded {
+		res.Interval.Low, res.Interval.High = num(p.Interval.Low), num(p.Interval.High)
+	}
+	return res
+}
+
+func hasFlag(flags []string, f string) bool {
+	for _, x := range flags {
+		if x == f {
+			return true
+		}
+	}
+	return false
+}
+
+// ReviewCurve approves or rejects a curve awaiting review, once.
+func (s *Server) ReviewCurve(ctx context.Context, req oapi.ReviewCurveRequestObject) (oapi.ReviewCurveResponseObject, error) {
+	p := mustPrincipal(ctx)
+	id := req.ID.String()
+	reason := deref(req.Body.Reason)
+	if _, err := s.db.ReviewCurve(ctx, id, string(req.Body.Decision), reason, p.Actor()); err != nil {
+		var se *store.Error
+		if errors.As(err, &se) && se.Kind == store.KindInvalid && se.Field == "" {
+			return nil, store.FieldError("/reason", "%s", se.Message)
+		}
+		return nil, err
+	}
+	s.curves.drop(id)
+	c, err := s.freshCurve(ctx, id)
+	if err != nil {
+		return nil, err
+	}
+	return oapi.ReviewCurve200JSONResponse(curveOut(c)), nil
+}
+
+// GetCurveAudit returns the audit trail of a curve and of its run.
+func (s *Server) GetCurveAudit(ctx context.Context, req oapi.GetCurveAuditRequestObject) (oapi.GetCurveAuditResponseObject, error) {
+	events, err := s.db.ListAudit(ctx, req.ID.String())
+	if err != nil {
+		return nil, err
+	}
+	out := oapi.GetCurveAudit200JSONResponse{Events: make([]oapi.AuditEvent, 0, len(events))}
+	for _, e := range events {
+		out.Events = append(out.Events, oapi.AuditEvent{At: e.At, Actor: e.Actor, Action: e.Action, Detail: auditText(e)})
+	}
+	return out, nil
+}
+
+// auditText renders an audit event's detail for people: the entity and its
+// recorded facts as compact JSON.
+func auditText(e store.AuditEvent) string {
+	var compact bytes.Buffer
+	if len(e.Detail) > 0 && json.Compact(&compact, e.Detail) == nil && compact.String() != "{}" {
+		return e.EntityType + " " + e.EntityID + ": " + compact.String()
+	}
+	return e.EntityType + " " + e.EntityID
+}
+
+// GetCurvePlotSVG draws the curve as SVG.
+func (s *Server) GetCurvePlotSVG(ctx context.Context, req oapi.GetCurvePlotSVGRequestObject) (oapi.GetCurvePlotSVGResponseObject, error) {
+	b, err := s.plot(ctx, req.ID.String(), curveplot.FormatSVG)
+	if err != nil {
+		return nil, err
+	}
+	return oapi.GetCurvePlotSVG200ImageSvgXMLResponse{Body: bytes.NewReader(b), ContentLength: int64(len(b))}, nil
+}
+
+// GetCurvePlotPNG draws the curve as PNG.
+func (s *Server) GetCurvePlotPNG(ctx context.Context, req oapi.GetCurvePlotPNGRequestObject) (oapi.GetCurvePlotPNGResponseObject, error) {
+	b, err := s.plot(ctx, req.ID.String(), curveplot.FormatPNG)
+	if err != nil {
+		return nil, err
+	}
+	return oapi.GetCurvePlotPNG200ImagePngResponse{Body: bytes.NewReader(b), ContentLength: int64(len(b))}, nil
+}
+
+func (s *Server) plot(ctx context.Context, id, format string) ([]byte, error) {
+	c, err := s.curve(ctx, id)
+	if err != nil {
+		return nil, err
+	}
+	title := fmt.Sprintf("%s · %s · %s", c.Instrument, c.Analyte, c.AcquiredAt.UTC().Format("2006-01-02 15:04 MST"))
+	b, err := curveplot.Curve(c.Report, curveplot.Options{Format: format, Title: title, Analyte: c.Analyte, Unit: c.Unit})
+	if err != nil {
+		return nil, fmt.Errorf("api: plot curve %s: %w", id, err)
+	}
+	return b, nil
+}

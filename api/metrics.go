@@ -1,0 +1,57 @@
+package api
+
+import (
+	"strconv"
+	"time"
+
+	"github.com/labstack/echo/v4"
+	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/collectors"
+)
+
+// metrics holds the server's Prometheus collectors, on a registry of its own
+// so that several servers can live in one process (tests).
+type metrics struct {
+	registry *prometheus.Registry
+	requests *prometheus.CounterVec
+	duration *prometheus.HistogramVec
+}
+
+func newMetrics() *metrics {
+	m := &metrics{
+		registry: prometheus.NewRegistry(),
+		requests: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "curvekeeper_http_requests_total",
+			Help: "HTTP requests by method, route template and status.",
+		}, []string{"method", "route", "status"}),
+		duration: prometheus.NewHistogramVec(prometheus.HistogramOpts{
+			Name:    "curvekeeper_http_request_duration_seconds",
+			Help:    "HTTP request latency by method, route template and status.",
+			Buckets: []float64{.0005, .001, .0025, .005, .01, .025, .05, .1, .25, .5, 1, 2.5, 5, 10},
+		}, []string{"method", "route", "status"}),
+	}
+	m.registry.MustRegister(m.requests, m.duration,
+		collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
+	return m
+}
+
+// middleware counts and times every request by its route template (never
+// the raw path, which would make a series per id).
+func (m *metrics) middleware(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) error {
+		start := time.Now()
+		err := next(c)
+		if err != nil {
+			c.Error(err)
+		}
+		route := c.Path()
+		if route == "" {
+			route = "unmatched"
+		}
+		status := strconv.Itoa(c.Response().Status)
+		m.requests.WithLabelValues(c.Request().Method, route, status).Inc()
+		m.duration.WithLabelValues(c.Request().Method, route, status).Observe(time.Since(start).Seconds())
+		return nil
+	}
+}
+

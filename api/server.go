@@ -1,0 +1,76 @@
+// Package api is curvekeeper's HTTP layer: it owns every Echo and HTTP type.
+package api
+
+import (
+	"fmt"
+	"log/slog"
+	"net/http"
+	"time"
+
+	"github.com/labstack/echo/v4"
+	"github.com/prometheus/client_golang/prometheus"
+
+	"curvekeeper/api/oapi"
+	"curvekeeper/store"
+)
+
+var _ oapi.StrictServerInterface = (*Server)(nil)
+
+// Config holds what the HTTP layer needs to know.
+type Config struct {
+	BodyLimit      int64         // largest request body accepted, bytes
+	RequestTimeout time.Duration // deadline of each request's context
+	Version        string        // build version, reported in logs
+}
+
+// DefaultConfig returns the defaults used when a field is zero.
+func DefaultConfig() Config {
+	return Config{BodyLimit: 8 << 20, RequestTimeout: 15 * time.Second}
+}
+
+// Server is the HTTP service.
+type Server struct {
+	cfg     Config
+	db      *store.DB
+	log     *slog.Logger
+	echo    *echo.Echo
+	metrics *metrics
+	scopes  scopeTable
+	curves  *curveCache
+}
+
+// New builds the server and its routes.
+func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
+	def := DefaultConfig()
+	if cfg.BodyLimit <= 0 {
+		cfg.BodyLimit = def.BodyLimit
+	}
+	if cfg.RequestTimeout <= 0 {
+		cfg.RequestTimeout = def.RequestTimeout
+	}
+	e := echo.New()
+	e.HideBanner = true
+	e.HidePort = true
+	doc, err := oapi.GetSwagger()
+	if err != nil {
+		return nil, fmt.Errorf("api: load the embedded spec: %w", err)
+	}
+	validator, err := requestValidator(doc)
+	if err != nil {
+		return nil, err
+	}
+	s := &Server{cfg: cfg, db: db, log: log, echo: e, metrics: newMetrics(),
+		scopes: newScopeTable(doc), curves: newCurveCache(1024)}
+	e.HTTPErrorHandler = s.errorHandler
+	e.Use(s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware,
+		s.timeoutMiddleware, s.bodyLimitMiddleware, s.authMiddleware, validator)
+	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
+	return s, nil
+}
+
+// Handler returns the server as an http.Handler.
+func (s *Server) Handler() http.Handler { return s.echo }
+
+// Registry returns the Prometheus registry the server reports to.
+func (s *Server) Registry() *prometheus.Registry { return s.metrics.registry }
+

@@ -1,0 +1,177 @@
+package api
+
+import (
+	"errors"
+	"fmt"
+	"mime"
+	"net/http"
+	"strings"
+
+	"github.com/getkin/kin-openapi/openapi3"
+	"github.com/getkin/kin-openapi/openapi3filter"
+	"github.com/getkin/kin-openapi/routers"
+	"github.com/getkin/kin-openapi/routers/gorillamux"
+	"github.com/labstack/echo/v4"
+	oapimw "github.com/oapi-codegen/echo-middleware"
+)
+
+func init() {
+	// The CSV layout is checked by decodeCSVRun, which names the line and
+	// column of every breach; the schema sees the body as a string only.
+	openapi3filter.RegisterBodyDecoder("text/csv", openapi3filter.PlainBodyDecoder)
+}
+
+// requestValidator checks every request against the OpenAPI document before
+// a handler sees it: parameters, content type and body. Its failures become
+// problem details naming each offending field.
+func requestValidator(doc *openapi3.T) (echo.MiddlewareFunc, error) {
+	router, err := gorillamux.NewRouter(doc)
+	if err != nil {
+		return nil, fmt.Errorf("api: route the spec: %w", err)
+	}
+	opts := &oapimw.Options{
+		Options: openapi3filter.Options{
+			MultiError:         true,
+			AuthenticationFunc: openapi3filter.NoopAuthenticationFunc, // authMiddleware decides
+		},
+		SilenceServersWarning: true,
+		DoNotValidateServers:  true,
+		MultiErrorHandler: func(me openapi3.MultiError) *echo.HTTPError {
+			return &echo.HTTPError{Code: http.StatusBadRequest, Internal: me}
+		},
+	}
+	return func(next echo.HandlerFunc) echo.HandlerFunc {
+		return func(c echo.Context) error {
+			route, _, ferr := router.FindRoute(c.Request())
+			if ferr != nil {
+				if errors.Is(ferr, routers.ErrMethodNotAllowed) {
+					return newProblem(http.StatusMethodNotAllowed, "this path does not accept "+c.Request().Method)
+				}
+				return newProblem(http.StatusNotFound, "no such route: "+c.Request().URL.Path)
+			}
+			if p := checkContentType(c.Request(), route.Operation); p != nil {
+				return p
+			}
+			if he := oapimw.ValidateRequestFromContext(c, router, opts); he != nil {
+				return validationProblem(he)
+			}
+			return next(c)
+		}
+	}, nil
+}
+
+// checkContentType answers 415 for a body whose media type the operation
+// does not accept.
+func checkContentType(req *http.Request, op *openapi3.Operation) *problemError {
+	if op == nil || op.RequestBody == nil || op.RequestBody.Value == nil {
+		return nil
+	}
+	if req.ContentLength == 0 && req.Header.Get("Content-Type") == "" {
+		return nil // a missing body is the schema's to refuse
+	}
+	mt, _, err := mime.ParseMediaType(req.Header.Get("Content-Type"))
+	content := op.RequestBody.Value.Content
+	if err == nil && content.Get(mt) != nil {
+		return nil
+	}
+	accepted := make([]string, 0, len(content))
+	for k := range content {
+		accepted = append(accepted, k)
+	}
+	return newProblem(http.StatusUnsupportedMediaType,
+		fmt.Sprintf("Content-Type %q is not accepted here; send %s", req.Header.Get("Content-Type"), strings.Join(accepted, " or ")))
+}
+
+// validationProblem turns the validator's errors into one 400 problem that
+// lists each offending field by JSON pointer (body) or by "query:name",
+// "path:name" or "header:name" (parameters).
+func validationProblem(he *echo.HTTPError) *problemError {
+	var fields []ProblemField
+	var walk func(err error)
+	walk = func(err error) {
+		var me openapi3.MultiError
+		if errors.As(err, &me) {
+			for _, e := range me {
+				walk(e)
+			}
+			return
+		}
+		var re *openapi3filter.RequestError
+		if errors.As(err, &re) {
+			prefix := ""
+			if re.Parameter != nil {
+				prefix = re.Parameter.In + ":" + re.Parameter.Name
+			}
+			var inner openapi3.MultiError
+			if errors.As(re.Err, &inner) {
+				for _, e := range inner {
+					fields = append(fields, fieldOf(prefix, e))
+				}
+				return
+			}
+			fields = append(fields, fieldOf(prefix, re.Err, re.Reason))
+			return
+		}
+		fields = append(fields, ProblemField{Pointer: "", Detail: firstLine(err.Error())})
+	}
+	if he.Internal != nil {
+		walk(he.Internal)
+	} else {
+		fields = append(fields, ProblemField{Detail: fmt.Sprint(he.Message)})
+	}
+	detail := "the request does not match the API contract"
+	if len(fields) == 1 {
+		detail = fields[0].Detail
+		if fields[0].Pointer != "" {
+			detail = fields[0].Pointer + ": " + detail
+		}
+	}
+	if len(fields) > 50 {
+		fields = fields[:50]
+	}
+	return newProblem(http.StatusBadRequest, detail, fields...)
+}
+
+// fieldOf names the field a schema error is about.
+func fieldOf(prefix string, err error, fallback ...string) ProblemField {
+	var se *openapi3.SchemaError
+	if errors.As(err, &se) {
+		tokens := se.JSONPointer()
+		for i, t := range tokens {
+			tokens[i] = pointerEscaper.Replace(t)
+		}
+		ptr := "/" + strings.Join(tokens, "/")
+		if ptr == "/" {
+			ptr = ""
+		}
+		reason := se.Reason
+		if prefix != "" {
+			return ProblemField{Pointer: prefix + ptr, Detail: reason}
+		}
+		if ptr == "" {
+			ptr = "/"
+		}
+		return ProblemField{Pointer: ptr, Detail: reason}
+	}
+	msg := ""
+	if err != nil {
+		msg = firstLine(err.Error())
+	}
+	if msg == "" && len(fallback) > 0 {
+		msg = fallback[0]
+	}
+	if prefix == "" {
+		prefix = "/"
+	}
+	return ProblemField{Pointer: prefix, Detail: msg}
+}
+
+// pointerEscaper escapes a reference token of a JSON pointer (RFC 6901).
+var pointerEscaper = strings.NewReplacer("~", "~0", "/", "~1")
+
+func firstLine(s string) string {
+	if i := strings.IndexByte(s, '\n'); i >= 0 {
+		return s[:i]
+	}
+	return s
+}

@@ -1,0 +1,92 @@
+package main
+
+import (
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"strconv"
+	"strings"
+	"time"
+)
+
+// config is every setting of the service, parsed once from flags and
+// CURVEKEEPER_* environment variables (flags win) and passed down as a value.
+type config struct {
+	Listen          string
+	DatabaseURL     string
+	DataDir         string
+	BodyLimit       int64
+	RequestTimeout  time.Duration
+	ShutdownTimeout time.Duration
+	MigrateLockWait time.Duration
+	LogLevel        string
+	BootstrapToken  string
+}
+
+// usageError is a bad command line or setting; it exits with status 2.
+type usageError struct{ msg string }
+
+func (e *usageError) Error() string { return e.msg }
+
+func exitCode(err error) int {
+	var ue *usageError
+	if errors.As(err, &ue) {
+		return 2
+	}
+	return 1
+}
+
+// parseConfig reads the flags of a subcommand over the environment.
+func parseConfig(name string, args []string, getenv func(string) string, stderr io.Writer) (config, []string, error) {
+	env := func(key, def string) string {
+		if v := getenv(key); v != "" {
+			return v
+		}
+		return def
+	}
+	var cfg config
+	fs := flag.NewFlagSet("curvekeeper "+name, flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	fs.StringVar(&cfg.Listen, "listen", env("CURVEKEEPER_LISTEN", "127.0.0.1:8080"), "address to listen on (CURVEKEEPER_LISTEN)")
+	fs.StringVar(&cfg.DatabaseURL, "database-url", env("DATABASE_URL", ""), "PostgreSQL URL; empty starts a private cluster in --data-dir (DATABASE_URL)")
+	fs.StringVar(&cfg.DataDir, "data-dir", env("CURVEKEEPER_DATA_DIR", "./curvekeeper-data"), "folder of the private PostgreSQL cluster (CURVEKEEPER_DATA_DIR)")
+	bodyLimit := fs.String("body-limit", env("CURVEKEEPER_BODY_LIMIT", "8388608"), "largest request body in bytes (CURVEKEEPER_BODY_LIMIT)")
+	reqTimeout := fs.String("request-timeout", env("CURVEKEEPER_REQUEST_TIMEOUT", "15s"), "deadline of each request (CURVEKEEPER_REQUEST_TIMEOUT)")
+	shutTimeout := fs.String("shutdown-timeout", env("CURVEKEEPER_SHUTDOWN_TIMEOUT", "20s"), "time in-flight requests get on SIGTERM (CURVEKEEPER_SHUTDOWN_TIMEOUT)")
+	lockWait := fs.String("migrate-lock-timeout", env("CURVEKEEPER_MIGRATE_LOCK_TIMEOUT", "30s"), "longest wait for the migration lock (CURVEKEEPER_MIGRATE_LOCK_TIMEOUT)")
+	fs.StringVar(&cfg.LogLevel, "log-level", env("CURVEKEEPER_LOG_LEVEL", "info"), "debug, info, warn or error (CURVEKEEPER_LOG_LEVEL)")
+	cfg.BootstrapToken = getenv("CURVEKEEPER_BOOTSTRAP_TOKEN")
+	if err := fs.Parse(args); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return cfg, nil, err
+		}
+		return cfg, nil, &usageError{err.Error()}
+	}
+	var err error
+	if cfg.BodyLimit, err = strconv.ParseInt(*bodyLimit, 10, 64); err != nil || cfg.BodyLimit < 1024 {
+		return cfg, nil, &usageError{fmt.Sprintf("--body-limit %q: want a whole number of bytes ≥ 1024", *bodyLimit)}
+	}
+	durations := []struct {
+		name string
+		in   string
+		out  *time.Duration
+	}{
+		{"--request-timeout", *reqTimeout, &cfg.RequestTimeout},
+		{"--shutdown-timeout", *shutTimeout, &cfg.ShutdownTimeout},
+		{"--migrate-lock-timeout", *lockWait, &cfg.MigrateLockWait},
+	}
+	for _, d := range durations {
+		v, err := time.ParseDuration(d.in)
+		if err != nil || v <= 0 {
+			return cfg, nil, &usageError{fmt.Sprintf("%s %q: want a positive duration such as 15s", d.name, d.in)}
+		}
+		*d.out = v
+	}
+	switch strings.ToLower(cfg.LogLevel) {
+	case "debug", "info", "warn", "error":
+	default:
+		return cfg, nil, &usageError{fmt.Sprintf("--log-level %q: want debug, info, warn or error", cfg.LogLevel)}
+	}
+	return cfg, fs.Args(), nil
+}

@@ -1,0 +1,184 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"log/slog"
+	"net"
+	"net/http"
+	"strings"
+	"time"
+
+	"curvekeeper/api"
+	"curvekeeper/store"
+	"curvekeeper/store/localpg"
+)
+
+// run is the whole program; main only wires the process to it. Tests call it
+// with their own arguments, environment and writers, on port 0.
+func run(ctx context.Context, args []string, getenv func(string) string, stdout, stderr io.Writer) error {
+	cmd := "serve"
+	if len(args) > 0 && !strings.HasPrefix(args[0], "-") {
+		cmd, args = args[0], args[1:]
+	}
+	switch cmd {
+	case "serve":
+		cfg, _, err := parseConfig(cmd, args, getenv, stderr)
+		if err != nil {
+			return helpOK(err)
+		}
+		return serve(ctx, cfg, stdout, stderr)
+	case "migrate":
+		return migrateCmd(ctx, args, getenv, stdout, stderr)
+	case "help", "-h", "--help":
+		fmt.Fprint(stdout, usageText)
+		return nil
+	default:
+		return &usageError{fmt.Sprintf("unknown command %q (want serve, migrate or help)", cmd)}
+	}
+}
+
+const usageText = `usage:
+  curvekeeper [serve] [flags]                 serve the HTTP API (default)
+  curvekeeper migrate up|down [N]|version     manage the database schema
+  curvekeeper help                            this text
+Run "curvekeeper serve -h" for the flags.
+`
+
+func helpOK(err error) error {
+	if errors.Is(err, flag.ErrHelp) {
+		return nil
+	}
+	return err
+}
+
+func newLogger(cfg config, w io.Writer) *slog.Logger {
+	var level slog.Level
+	_ = level.UnmarshalText([]byte(cfg.LogLevel))
+	return slog.New(slog.NewJSONHandler(w, &slog.HandlerOptions{Level: level}))
+}
+
+// database is an open database and whatever must be stopped after it.
+type database struct {
+	url     string
+	cluster *localpg.Cluster // nil when DATABASE_URL names a server
+}
+
+// openDatabase returns DATABASE_URL's server, or starts the private cluster.
+func openDatabase(ctx context.Context, cfg config, log *slog.Logger) (*database, error) {
+	if cfg.DatabaseURL != "" {
+		return &database{url: cfg.DatabaseURL}, nil
+	}
+	cl, err := localpg.Start(ctx, localpg.Options{DataDir: cfg.DataDir, Logger: log})
+	if err != nil {
+		return nil, err
+	}
+	return &database{url: cl.URL(), cluster: cl}, nil
+}
+
+func (d *database) close(log *slog.Logger) {
+	if d.cluster == nil {
+		return
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
+	defer cancel()
+	if err := d.cluster.Stop(ctx); err != nil {
+		log.Error("stop private PostgreSQL", "error", err)
+	}
+}
+
+// where says where the data lives, without a password.
+func (d *database) where() string {
+	if d.cluster != nil {
+		return "private PostgreSQL in " + d.cluster.DataDir()
+	}
+	return "PostgreSQL at " + redactURL(d.url)
+}
+
+func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
+	log := newLogger(cfg, stderr)
+	started := time.Now()
+
+	// Claim the port before anything slow, so "port in use" fails at once.
+	ln, err := net.Listen("tcp", cfg.Listen)
+	if err != nil {
+		return fmt.Errorf("cannot listen on %s: %v", cfg.Listen, errors.Unwrap(err))
+	}
+	defer ln.Close()
+
+	dbase, err := openDatabase(ctx, cfg, log)
+	if err != nil {
+		return err
+	}
+	defer dbase.close(log)
+
+	connectCtx, cancel := context.WithTimeout(ctx, 10*time.Second)
+	defer cancel()
+	db, err := store.Open(connectCtx, dbase.url)
+	if err != nil {
+		return fmt.Errorf("cannot reach the database (%s): %v", redactURL(dbase.url), errors.Unwrap(err))
+	}
+	defer db.Close()
+	if err := store.MigrateUp(ctx, dbase.url, cfg.MigrateLockWait); err != nil {
+		return err
+	}
+	if err := db.CheckSchema(ctx); err != nil {
+		return err
+	}
+	if cfg.BootstrapToken != "" {
+		if _, _, err := db.EnsureToken(ctx, "bootstrap", cfg.BootstrapToken, []string{"admin"}); err != nil {
+			return fmt.Errorf("store the bootstrap token: %w", err)
+		}
+	}
+
+	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout}, db, log)
+	if err != nil {
+		return err
+	}
+	hs := &http.Server{
+		Handler:           srv.Handler(),
+		ReadHeaderTimeout: 10 * time.Second,
+		ReadTimeout:       cfg.RequestTimeout + 15*time.Second,
+		WriteTimeout:      cfg.RequestTimeout + 15*time.Second,
+		IdleTimeout:       120 * time.Second,
+		ErrorLog:          slog.NewLogLogger(log.Handler(), slog.LevelWarn),
+	}
+	errc := make(chan error, 1)
+	go func() { errc <- hs.Serve(ln) }()
+
+	addr := ln.Addr().String()
+	fmt.Fprintf(stdout, "curvekeeper: listening on http://%s\n", addr)
+	fmt.Fprintf(stdout, "curvekeeper: data in %s\n", dbase.where())
+	log.Info("ready", "listen", addr, "database", dbase.where(), "startup_ms", time.Since(started).Milliseconds())
+
+	select {
+	case err := <-errc:
+		return fmt.Errorf("http server: %w", err)
+	case <-ctx.Done():
+	}
+	log.Info("shutting down", "deadline", cfg.ShutdownTimeout.String())
+	shutCtx, cancelShut := context.WithTimeout(context.Background(), cfg.ShutdownTimeout)
+	defer cancelShut()
+	if err := hs.Shutdown(shutCtx); err != nil {
+		log.Error("shutdown deadline passed; closing connections", "error", err)
+		_ = hs.Close()
+	}
+	fmt.Fprintln(stdout, "curvekeeper: stopped")
+	return nil
+}
+
+// redactURL hides a password in a database URL.
+func redactURL(u string) string {
+	if i := strings.Index(u, "://"); i >= 0 {
+		rest := u[i+3:]
+		if at := strings.LastIndex(rest, "@"); at >= 0 {
+			if colon := strings.Index(rest[:at], ":"); colon >= 0 {
+				return u[:i+3] + rest[:colon] + ":xxxxx" + rest[at:]
+			}
+		}
+	}
+	return u
+}
