@@ -71,7 +71,7 @@ func idempotencyError(err error) error {
 
 func runCreatedOut(c *store.RunCreated) oapi.CreateRun201JSONResponse {
 	out := oapi.CreateRun201JSONResponse{
-		Body: oapi.RunCreated{ID: uuidOf(c.ID), Cautions: calib.Cautions(), Curves: make([]oapi.RunCurve, 0, len(c.Curves))},
+		Body:    oapi.RunCreated{ID: uuidOf(c.ID), Cautions: calib.Cautions(), Curves: make([]oapi.RunCurve, 0, len(c.Curves))},
 		Headers: oapi.CreateRun201ResponseHeaders{Location: "/v1/runs/" + c.ID, IdempotencyReplayed: c.Replayed},
 	}
 	for _, cv := range c.Curves {

@@ -54,4 +54,3 @@ func (m *metrics) middleware(next echo.HandlerFunc) echo.HandlerFunc {
 		return nil
 	}
 }
-

@@ -73,4 +73,3 @@ func (s *Server) Handler() http.Handler { return s.echo }
 
 // Registry returns the Prometheus registry the server reports to.
 func (s *Server) Registry() *prometheus.Registry { return s.metrics.registry }
-
