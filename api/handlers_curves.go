@@ -46,7 +46,7 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 	}
 	out := oapi.ListCurves200JSONResponse{Curves: make([]oapi.CurveSummary, 0, len(page.Curves)), Cautions: calib.Cautions()}
 	for i := range page.Curves {
-		out.Curves = append(out.Curves, summaryOut(&page.Curves[i], nil))
+		out.Curves = append(out.Curves, summaryOut(&page.Curves[i], page.Curves[i].FailedChecks))
 	}
 	if page.NextCursor != "" {
 		out.NextCursor = &page.NextCursor

@@ -204,6 +204,8 @@ CREATE TABLE curves (
     residual_sd     double precision,
     r_squared       double precision,
     lod             double precision,
+    -- names of the checks that did not pass, for history without the report
+    failed_checks   text[]      NOT NULL DEFAULT '{}',
     FOREIGN KEY (method, method_revision) REFERENCES methods (name, revision),
     CHECK ((status = 'pending_review') = (reviewed_at IS NULL)),
     CHECK ((reviewed_at IS NULL) = (reviewed_by IS NULL))

@@ -59,6 +59,8 @@ type CurveSummary struct {
 	ReviewedBy     string
 	// Copies of report values for trends; nil when not computed.
 	Slope, Intercept, ResidualSD, RSquared, LOD *float64
+	// FailedChecks names the checks that did not pass, mandatory or advisory.
+	FailedChecks []string
 }
 
 // Curve is a stored curve with its report and, once reviewed, its review.
@@ -79,7 +81,7 @@ type Review struct {
 
 const curveColumns = `id, run_id, revision_of, method, method_revision, instrument, analyte, unit, model, weighting,
 verdict, status, engine_version, acquired_at, created_at, created_by, reviewed_at, reviewed_by,
-slope, intercept, residual_sd, r_squared, lod`
+slope, intercept, residual_sd, r_squared, lod, failed_checks`
 
 func scanCurveSummary(row pgx.Row, extra ...any) (CurveSummary, error) {
 	var (
@@ -89,7 +91,8 @@ func scanCurveSummary(row pgx.Row, extra ...any) (CurveSummary, error) {
 	)
 	dest := append([]any{&c.ID, &c.RunID, &revisionOf, &c.Method, &c.MethodRevision, &c.Instrument, &c.Analyte,
 		&c.Unit, &model, &weighting, &c.Verdict, &c.Status, &c.EngineVersion, &c.AcquiredAt, &c.CreatedAt,
-		&c.CreatedBy, &c.ReviewedAt, &reviewer, &c.Slope, &c.Intercept, &c.ResidualSD, &c.RSquared, &c.LOD}, extra...)
+		&c.CreatedBy, &c.ReviewedAt, &reviewer, &c.Slope, &c.Intercept, &c.ResidualSD, &c.RSquared, &c.LOD,
+		&c.FailedChecks}, extra...)
 	if err := row.Scan(dest...); err != nil {
 		return CurveSummary{}, err
 	}

@@ -197,6 +197,7 @@ type preparedCurve struct {
 	engine    string
 	report    []byte
 	scalars   curveScalars
+	failed    []string // names of the checks that did not pass
 }
 
 // curveScalars are the report values copied into columns for trends.
@@ -209,6 +210,18 @@ func fptr(v float64) *float64 {
 		return nil
 	}
 	return &v
+}
+
+// failedChecks lists the names of the report's checks that did not pass
+// (mandatory or advisory, computed or not), for history without the report.
+func failedChecks(r *calib.Report) []string {
+	out := []string{}
+	for _, c := range r.Checks {
+		if !c.Passed {
+			out = append(out, c.Name)
+		}
+	}
+	return out
 }
 
 // scalarsOf copies slope, intercept, residual SD, R² and LOD out of a report.
@@ -249,6 +262,7 @@ func prepareCurve(c CurveInput) (preparedCurve, error) {
 	if p.verdict != VerdictPass && p.verdict != VerdictFail {
 		return preparedCurve{}, fmt.Errorf("store: curve %s: report verdict %q is neither pass nor fail", c.Analyte, r.Verdict)
 	}
+	p.failed = failedChecks(r)
 	if p.report, err = json.Marshal(r); err != nil {
 		return preparedCurve{}, fmt.Errorf("store: marshal report of curve %s: %w", c.Analyte, err)
 	}
@@ -267,8 +281,9 @@ INSERT INTO run_samples (run_id, position, sample_id, analyte, responses, diluti
 VALUES ($1, $2, $3, $4, $5, $6)`
 	sqlInsertCurve = `
 INSERT INTO curves (id, run_id, method, method_revision, instrument, analyte, unit, model, weighting, verdict,
-                    engine_version, report, acquired_at, created_by, slope, intercept, residual_sd, r_squared, lod)
-VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19)`
+                    engine_version, report, acquired_at, created_by, slope, intercept, residual_sd, r_squared, lod,
+                    failed_checks)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19, $20)`
 )
 
 // CreateRun stores a run, its readings and samples, its fitted curves (each
@@ -389,7 +404,8 @@ func runBatch(in *RunInput, runID string, payload []byte, curves []preparedCurve
 		unit := c.in.Unit
 		b.Queue(sqlInsertCurve, c.id, runID, in.Method, in.MethodRevision, in.Instrument, c.in.Analyte, unit,
 			c.model, c.weighting, c.verdict, c.engine, c.report, in.AcquiredAt, in.Actor,
-			c.scalars.slope, c.scalars.intercept, c.scalars.residualSD, c.scalars.rSquared, c.scalars.lod)
+			c.scalars.slope, c.scalars.intercept, c.scalars.residualSD, c.scalars.rSquared, c.scalars.lod,
+			c.failed)
 	}
 	detail := map[string]any{
 		"method": in.Method, "method_revision": in.MethodRevision, "instrument": in.Instrument,
