@@ -33,17 +33,20 @@ func run(ctx context.Context, args []string, getenv func(string) string, stdout,
 		return serve(ctx, cfg, stdout, stderr)
 	case "migrate":
 		return migrateCmd(ctx, args, getenv, stdout, stderr)
+	case "demo":
+		return demoCmd(ctx, args, getenv, stdout, stderr)
 	case "help", "-h", "--help":
 		fmt.Fprint(stdout, usageText)
 		return nil
 	default:
-		return &usageError{fmt.Sprintf("unknown command %q (want serve, migrate or help)", cmd)}
+		return &usageError{fmt.Sprintf("unknown command %q (want serve, migrate, demo or help)", cmd)}
 	}
 }
 
 const usageText = `usage:
   curvekeeper [serve] [flags]                 serve the HTTP API (default)
   curvekeeper migrate up|down [N]|version     manage the database schema
+  curvekeeper demo [flags]                    load the invented demo scenario, print tokens
   curvekeeper help                            this text
 Run "curvekeeper serve -h" for the flags.
 `
