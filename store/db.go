@@ -18,15 +18,60 @@ type DB struct {
 	Pool *pgxpool.Pool
 }
 
+// AppRole is the role the service works as (migrations/000005_app_role):
+// it may read and write the service's tables but holds no UPDATE, DELETE or
+// TRUNCATE on audit.
+const AppRole = "curvekeeper_app"
+
 // Open connects to the database named by url (a PostgreSQL URL or keyword/value
-// string) and checks that it answers within the context's deadline.
+// string) and checks that it answers within the context's deadline. Its
+// connections keep the login user's privileges (the tables' owner, usually);
+// the service uses OpenApp.
 func Open(ctx context.Context, url string) (*DB, error) {
+	return open(ctx, url, false)
+}
+
+// OpenApp is Open for the service: each new connection of the pool runs SET
+// ROLE curvekeeper_app when that role exists and the login user may assume
+// it, so that the service's own statements cannot change or remove audit
+// rows even if a trigger were dropped. Where the role is missing (the
+// migrating user could not create it) the connection keeps the login user's
+// privileges.
+func OpenApp(ctx context.Context, url string) (*DB, error) {
+	return open(ctx, url, true)
+}
+
+// sqlCanAssumeAppRole is true when AppRole exists and session_user may SET
+// ROLE to it (superusers may assume any role).
+const sqlCanAssumeAppRole = `
+SELECT coalesce(pg_has_role(session_user, r.oid, 'MEMBER'), false)
+FROM (SELECT (SELECT oid FROM pg_roles WHERE rolname = $1) AS oid) AS r`
+
+// assumeAppRole is the pool's AfterConnect hook of OpenApp.
+func assumeAppRole(ctx context.Context, conn *pgx.Conn) error {
+	var ok bool
+	if err := conn.QueryRow(ctx, sqlCanAssumeAppRole, AppRole).Scan(&ok); err != nil {
+		return fmt.Errorf("store: look up role %s: %w", AppRole, err)
+	}
+	if !ok {
+		return nil
+	}
+	if _, err := conn.Exec(ctx, `SET ROLE `+pgx.Identifier{AppRole}.Sanitize()); err != nil {
+		return fmt.Errorf("store: set role %s: %w", AppRole, err)
+	}
+	return nil
+}
+
+func open(ctx context.Context, url string, appRole bool) (*DB, error) {
 	cfg, err := pgxpool.ParseConfig(url)
 	if err != nil {
 		return nil, fmt.Errorf("store: parse database url: %w", err)
 	}
 	if cfg.ConnConfig.ConnectTimeout == 0 {
 		cfg.ConnConfig.ConnectTimeout = 5 * time.Second
+	}
+	if appRole {
+		cfg.AfterConnect = assumeAppRole
 	}
 	pool, err := pgxpool.NewWithConfig(ctx, cfg)
 	if err != nil {

@@ -120,7 +120,7 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 
 	connectCtx, cancel := context.WithTimeout(ctx, 10*time.Second)
 	defer cancel()
-	db, err := store.Open(connectCtx, dbase.url)
+	db, err := store.OpenApp(connectCtx, dbase.url)
 	if err != nil {
 		return fmt.Errorf("cannot reach the database (%s): %v", redactURL(dbase.url), errors.Unwrap(err))
 	}
