@@ -21,11 +21,18 @@ type Config struct {
 	BodyLimit      int64         // largest request body accepted, bytes
 	RequestTimeout time.Duration // deadline of each request's context
 	Version        string        // build version, reported in logs
+	// RateLimit is each token's sustained request rate per second and
+	// RateBurst its burst, counted in the memory of this process (per
+	// replica). Zero means DefaultRateLimit and DefaultRateBurst; a
+	// negative RateLimit turns limiting off.
+	RateLimit float64
+	RateBurst int
 }
 
 // DefaultConfig returns the defaults used when a field is zero.
 func DefaultConfig() Config {
-	return Config{BodyLimit: 8 << 20, RequestTimeout: 15 * time.Second}
+	return Config{BodyLimit: 8 << 20, RequestTimeout: 15 * time.Second,
+		RateLimit: DefaultRateLimit, RateBurst: DefaultRateBurst}
 }
 
 // Server is the HTTP service.
@@ -37,6 +44,7 @@ type Server struct {
 	metrics *metrics
 	scopes  scopeTable
 	curves  *curveCache
+	limiter *tokenLimiter // nil when rate limiting is off
 }
 
 // New builds the server and its routes.
@@ -47,6 +55,12 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 	}
 	if cfg.RequestTimeout <= 0 {
 		cfg.RequestTimeout = def.RequestTimeout
+	}
+	if cfg.RateLimit == 0 {
+		cfg.RateLimit = def.RateLimit
+	}
+	if cfg.RateBurst <= 0 {
+		cfg.RateBurst = def.RateBurst
 	}
 	e := echo.New()
 	e.HideBanner = true
@@ -61,9 +75,12 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 	}
 	s := &Server{cfg: cfg, db: db, log: log, echo: e, metrics: newMetrics(),
 		scopes: newScopeTable(doc), curves: newCurveCache(1024)}
+	if cfg.RateLimit > 0 {
+		s.limiter = newTokenLimiter(cfg.RateLimit, cfg.RateBurst)
+	}
 	e.HTTPErrorHandler = s.errorHandler
-	e.Use(s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware,
-		s.timeoutMiddleware, s.bodyLimitMiddleware, s.authMiddleware, validator)
+	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware,
+		s.timeoutMiddleware, s.bodyLimitMiddleware, s.authMiddleware, s.rateLimitMiddleware, validator)
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
 	return s, nil
 }

@@ -5,6 +5,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"math"
 	"strconv"
 	"strings"
 	"time"
@@ -22,6 +23,10 @@ type config struct {
 	MigrateLockWait time.Duration
 	LogLevel        string
 	BootstrapToken  string
+	RateLimit       float64 // requests per second per token, per replica; 0 turns limiting off
+	RateBurst       int
+	TLSCert         string // PEM certificate chain; with TLSKey the service speaks HTTPS only
+	TLSKey          string
 }
 
 // usageError is a bad command line or setting; it exits with status 2.
@@ -55,6 +60,10 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	reqTimeout := fs.String("request-timeout", env("CURVEKEEPER_REQUEST_TIMEOUT", "15s"), "deadline of each request (CURVEKEEPER_REQUEST_TIMEOUT)")
 	shutTimeout := fs.String("shutdown-timeout", env("CURVEKEEPER_SHUTDOWN_TIMEOUT", "20s"), "time in-flight requests get on SIGTERM (CURVEKEEPER_SHUTDOWN_TIMEOUT)")
 	lockWait := fs.String("migrate-lock-timeout", env("CURVEKEEPER_MIGRATE_LOCK_TIMEOUT", "30s"), "longest wait for the migration lock (CURVEKEEPER_MIGRATE_LOCK_TIMEOUT)")
+	rateLimit := fs.String("rate-limit", env("CURVEKEEPER_RATE_LIMIT", "50"), "requests per second each token may send, counted per replica; 0 turns limiting off (CURVEKEEPER_RATE_LIMIT)")
+	rateBurst := fs.String("rate-burst", env("CURVEKEEPER_RATE_BURST", "200"), "requests a token may send at once above the rate (CURVEKEEPER_RATE_BURST)")
+	fs.StringVar(&cfg.TLSCert, "tls-cert", env("CURVEKEEPER_TLS_CERT", ""), "PEM certificate file; with --tls-key serve HTTPS (CURVEKEEPER_TLS_CERT)")
+	fs.StringVar(&cfg.TLSKey, "tls-key", env("CURVEKEEPER_TLS_KEY", ""), "PEM private key file of --tls-cert (CURVEKEEPER_TLS_KEY)")
 	fs.StringVar(&cfg.LogLevel, "log-level", env("CURVEKEEPER_LOG_LEVEL", "info"), "debug, info, warn or error (CURVEKEEPER_LOG_LEVEL)")
 	cfg.BootstrapToken = getenv("CURVEKEEPER_BOOTSTRAP_TOKEN")
 	if err := fs.Parse(args); err != nil {
@@ -66,6 +75,15 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	var err error
 	if cfg.BodyLimit, err = strconv.ParseInt(*bodyLimit, 10, 64); err != nil || cfg.BodyLimit < 1024 {
 		return cfg, nil, &usageError{fmt.Sprintf("--body-limit %q: want a whole number of bytes ≥ 1024", *bodyLimit)}
+	}
+	if cfg.RateLimit, err = strconv.ParseFloat(*rateLimit, 64); err != nil || cfg.RateLimit < 0 || math.IsInf(cfg.RateLimit, 0) || math.IsNaN(cfg.RateLimit) {
+		return cfg, nil, &usageError{fmt.Sprintf("--rate-limit %q: want requests per second ≥ 0 (0 turns limiting off)", *rateLimit)}
+	}
+	if cfg.RateBurst, err = strconv.Atoi(*rateBurst); err != nil || cfg.RateBurst < 1 {
+		return cfg, nil, &usageError{fmt.Sprintf("--rate-burst %q: want a whole number ≥ 1", *rateBurst)}
+	}
+	if (cfg.TLSCert == "") != (cfg.TLSKey == "") {
+		return cfg, nil, &usageError{"--tls-cert and --tls-key go together: give both or neither"}
 	}
 	durations := []struct {
 		name string

@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"crypto/tls"
 	"errors"
 	"flag"
 	"fmt"
@@ -111,6 +112,10 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 		return fmt.Errorf("cannot listen on %s: %v", cfg.Listen, errors.Unwrap(err))
 	}
 	defer ln.Close()
+	tlsCfg, err := loadTLS(cfg)
+	if err != nil {
+		return err
+	}
 
 	dbase, err := openDatabase(ctx, cfg, log)
 	if err != nil {
@@ -137,7 +142,12 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 		}
 	}
 
-	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout}, db, log)
+	rateLimit := cfg.RateLimit
+	if rateLimit == 0 {
+		rateLimit = -1 // off
+	}
+	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout,
+		RateLimit: rateLimit, RateBurst: cfg.RateBurst}, db, log)
 	if err != nil {
 		return err
 	}
@@ -149,11 +159,22 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 		IdleTimeout:       120 * time.Second,
 		ErrorLog:          slog.NewLogLogger(log.Handler(), slog.LevelWarn),
 	}
+	scheme := "http"
+	if tlsCfg != nil {
+		hs.TLSConfig = tlsCfg
+		scheme = "https"
+	}
 	errc := make(chan error, 1)
-	go func() { errc <- hs.Serve(ln) }()
+	go func() {
+		if scheme == "https" {
+			errc <- hs.ServeTLS(ln, "", "")
+			return
+		}
+		errc <- hs.Serve(ln)
+	}()
 
 	addr := ln.Addr().String()
-	fmt.Fprintf(stdout, "curvekeeper: listening on http://%s\n", addr)
+	fmt.Fprintf(stdout, "curvekeeper: listening on %s://%s\n", scheme, addr)
 	fmt.Fprintf(stdout, "curvekeeper: data in %s\n", dbase.where())
 	log.Info("ready", "listen", addr, "database", dbase.where(), "startup_ms", time.Since(started).Milliseconds())
 
@@ -171,6 +192,18 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 	}
 	fmt.Fprintln(stdout, "curvekeeper: stopped")
 	return nil
+}
+
+// loadTLS reads --tls-cert and --tls-key; nil when neither is given.
+func loadTLS(cfg config) (*tls.Config, error) {
+	if cfg.TLSCert == "" {
+		return nil, nil
+	}
+	cert, err := tls.LoadX509KeyPair(cfg.TLSCert, cfg.TLSKey)
+	if err != nil {
+		return nil, fmt.Errorf("load --tls-cert %s and --tls-key %s: %w", cfg.TLSCert, cfg.TLSKey, err)
+	}
+	return &tls.Config{MinVersion: tls.VersionTLS12, Certificates: []tls.Certificate{cert}}, nil
 }
 
 // redactURL hides a password in a database URL.

@@ -1,0 +1,117 @@
+package api
+
+import (
+	"math"
+	"net/http"
+	"strconv"
+	"strings"
+	"sync"
+	"time"
+
+	"github.com/labstack/echo/v4"
+	"golang.org/x/time/rate"
+)
+
+// securityHeadersMiddleware sets the headers every response carries,
+// before anything else runs, so that errors, 404s and problems get them
+// too. Responses under /v1 are never stored by caches: they carry tokens'
+// results. Strict-Transport-Security is sent only over TLS, as RFC 6797
+// §7.2 asks.
+func (s *Server) securityHeadersMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) error {
+		h := c.Response().Header()
+		h.Set("X-Content-Type-Options", "nosniff")
+		h.Set("Referrer-Policy", "no-referrer")
+		h.Set("X-Frame-Options", "DENY")
+		h.Set("Content-Security-Policy", "frame-ancestors 'none'")
+		if strings.HasPrefix(c.Request().URL.Path, "/v1/") {
+			h.Set("Cache-Control", "no-store")
+		}
+		if c.Request().TLS != nil {
+			h.Set("Strict-Transport-Security", "max-age=31536000")
+		}
+		return next(c)
+	}
+}
+
+// DefaultRateLimit and DefaultRateBurst are the per-token request rate
+// (requests per second, sustained) and burst when Config leaves them zero:
+// generous, so that instruments posting runs and benchmarks are not
+// throttled, while a runaway client is.
+const (
+	DefaultRateLimit = 50.0
+	DefaultRateBurst = 200
+)
+
+// tokenLimiter holds one token bucket per API token. It lives in the
+// memory of one process: with several replicas each applies its own limit,
+// so a client spread over n replicas may reach n times the rate.
+type tokenLimiter struct {
+	limit rate.Limit
+	burst int
+
+	mu      sync.Mutex
+	buckets map[string]*rate.Limiter
+	sweepAt int // sweep full buckets when the map grows past this size
+}
+
+func newTokenLimiter(perSecond float64, burst int) *tokenLimiter {
+	return &tokenLimiter{limit: rate.Limit(perSecond), burst: burst,
+		buckets: map[string]*rate.Limiter{}, sweepAt: 1024}
+}
+
+// allow takes one request from the token's bucket. When the bucket is
+// empty it returns false and how long until a request would be admitted.
+func (l *tokenLimiter) allow(tokenID string, now time.Time) (bool, time.Duration) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	b, ok := l.buckets[tokenID]
+	if !ok {
+		if len(l.buckets) >= l.sweepAt {
+			l.sweep(now)
+		}
+		b = rate.NewLimiter(l.limit, l.burst)
+		l.buckets[tokenID] = b
+	}
+	r := b.ReserveN(now, 1)
+	if !r.OK() {
+		return false, time.Second
+	}
+	if d := r.DelayFrom(now); d > 0 {
+		r.CancelAt(now) // a refused request takes nothing from the bucket
+		return false, d
+	}
+	return true, 0
+}
+
+// sweep drops the buckets that have refilled completely: a fresh bucket is
+// full too, so forgetting them changes no decision and bounds the memory.
+func (l *tokenLimiter) sweep(now time.Time) {
+	for id, b := range l.buckets {
+		if b.TokensAt(now) >= float64(l.burst) {
+			delete(l.buckets, id)
+		}
+	}
+	l.sweepAt = max(1024, 2*len(l.buckets))
+}
+
+// rateLimitMiddleware refuses a token's requests past its rate with 429 and
+// a Retry-After header in whole seconds (at least 1). It runs after
+// authMiddleware, so requests without a valid token are not counted.
+func (s *Server) rateLimitMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) error {
+		p, ok := principalFrom(c.Request().Context())
+		if !ok || s.limiter == nil {
+			return next(c)
+		}
+		allowed, wait := s.limiter.allow(p.TokenID, time.Now())
+		if allowed {
+			return next(c)
+		}
+		secs := max(1, int(math.Ceil(wait.Seconds())))
+		c.Response().Header().Set("Retry-After", strconv.Itoa(secs))
+		return newProblem(http.StatusTooManyRequests, "this token sends requests faster than "+
+			strconv.FormatFloat(float64(s.limiter.limit), 'g', -1, 64)+" per second (burst "+strconv.Itoa(s.limiter.burst)+
+			"); retry after "+strconv.Itoa(secs)+" s")
+	}
+}
