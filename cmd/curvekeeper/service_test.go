@@ -371,15 +371,6 @@ func runBody(i int) map[string]any {
 
 func round6(v float64) float64 { return math.Round(v*1e6) / 1e6 }
 
-// readingsOf is the number of readings in a run body.
-func readingsOf(body map[string]any) int {
-	n := 0
-	for _, s := range body["standards"].([]map[string]any) {
-		n += len(s["responses"].([]float64))
-	}
-	return n
-}
-
 // created is the part of a 201 answer to POST /v1/runs the tests check.
 type created struct {
 	ID     string `json:"id"`
