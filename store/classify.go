@@ -22,8 +22,8 @@ const (
 )
 
 // classify wraps err with the operation that failed. A database that cannot be
-// reached (refused or broken connection, shutdown, timeout, too many
-// connections) becomes a KindUnavailable *Error so that the api answers 503;
+// reached (refused, broken or closed connection, shutdown, timeout, too
+// many connections) becomes a KindUnavailable *Error so that the api answers 503;
 // an *Error passes through unchanged; anything else stays KindInternal.
 func classify(op string, err error) error {
 	if err == nil {
@@ -44,6 +44,12 @@ func classify(op string, err error) error {
 // could not serve the request now, as opposed to refusing it.
 func unavailable(err error) bool {
 	if errors.Is(err, context.DeadlineExceeded) {
+		return true
+	}
+	// A pooled connection that broke earlier in its transaction (the
+	// server crashed or was stopped) answers Begin, Exec and Commit with
+	// this; it carries no SQLSTATE and is not a net.Error.
+	if errors.Is(err, pgconn.ErrConnClosed) {
 		return true
 	}
 	var pgErr *pgconn.PgError
