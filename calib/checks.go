@@ -1,9 +1,11 @@
 package calib
 
 import (
+	"cmp"
 	"math"
-	"sort"
+	"slices"
 	"strings"
+	"sync"
 )
 
 // mandatoryNote ends the Detail of a mandatory check that could not be
@@ -45,20 +47,20 @@ func checkSource(name string, m Model) string {
 
 // computeChecks evaluates every check of the policy on the fit f of the
 // dataset d with normalised weights w.
-func computeChecks(r *Report, d *dataset, f lsq, w []float64, pol Policy) []Check {
+func computeChecks(r *Report, d *dataset, des *design, f lsq, w []float64, pol Policy) []Check {
 	nz := make([]float64, 0, len(d.levels))
 	for _, lv := range d.levels {
 		nz = append(nz, lv.x)
 	}
 	checks := []Check{
 		minLevelsCheck(nz, pol),
-		mandelCheck(r, d, f, w, pol),
+		mandelCheck(r, d, des, f, pol),
 		lackOfFitCheck(d, f, w, pol),
 		homoscedasticityCheck(r, d, pol),
 		backCalcCheck(r, d, pol),
 		rSquaredCheck(r, pol),
 		rseCheck(r, d, pol),
-		interceptCheck(r, d, f, w, pol),
+		interceptCheck(r, des, f, pol),
 		runsCheck(r, d, f, pol),
 		outlierCheck(r, d, pol),
 	}
@@ -104,20 +106,23 @@ func minLevelsCheck(xs []float64, pol Policy) Check {
 // adequate); for the quadratic PG > F passes (the quadratic term is
 // justified, ISO 8466-2). The origin model is judged by the curvature of the
 // unconstrained line. Needs N ≥ 4 readings at three or more levels.
-func mandelCheck(r *Report, d *dataset, f lsq, w []float64, pol Policy) Check {
+func mandelCheck(r *Report, d *dataset, des *design, f lsq, pol Policy) Check {
 	n := len(d.x)
 	if n < 4 || len(d.levels) < 3 {
 		return notComputed(CheckMandel, "Mandel's test needs at least 4 readings at 3 or more concentrations")
 	}
+	if des.k < 3 {
+		return notComputed(CheckMandel, "the quadratic term x² is outside the numerically usable range")
+	}
 	line, quad := f, f
 	var err error
 	if r.Model != Linear {
-		if line, err = solveLSQ(Linear, d.x, d.y, w); err != nil {
+		if line, err = des.fit(Linear); err != nil {
 			return notComputed(CheckMandel, "the line could not be fitted: "+err.Error())
 		}
 	}
 	if r.Model != Quadratic {
-		if quad, err = solveLSQ(Quadratic, d.x, d.y, w); err != nil {
+		if quad, err = des.fit(Quadratic); err != nil {
 			return notComputed(CheckMandel, "the quadratic could not be fitted: "+err.Error())
 		}
 	}
@@ -343,10 +348,13 @@ func rseCheck(r *Report, d *dataset, pol Policy) Check {
 // the intercept of the line fitted with the same weights is tested: a
 // significant intercept means forcing the curve through zero is not
 // justified.
-func interceptCheck(r *Report, d *dataset, f lsq, w []float64, pol Policy) Check {
+func interceptCheck(r *Report, des *design, f lsq, pol Policy) Check {
 	b0, v0, df := 0.0, 0.0, f.df
 	if r.Model == LinearOrigin {
-		line, err := solveLSQ(Linear, d.x, d.y, w)
+		if des.k < 2 {
+			return notComputed(CheckIntercept, "the line with intercept needs three or more readings")
+		}
+		line, err := des.fit(Linear)
 		if err != nil {
 			return notComputed(CheckIntercept, "the line with intercept could not be fitted: "+err.Error())
 		}
@@ -390,12 +398,11 @@ func runsCheck(r *Report, d *dataset, f lsq, pol Policy) Check {
 	for i := range order {
 		order[i] = i
 	}
-	sort.Slice(order, func(a, b int) bool {
-		ia, ib := order[a], order[b]
-		if d.x[ia] != d.x[ib] {
-			return d.x[ia] < d.x[ib]
+	slices.SortFunc(order, func(a, b int) int {
+		if c := cmp.Compare(d.x[a], d.x[b]); c != 0 {
+			return c
 		}
-		return d.y[ia] < d.y[ib]
+		return cmp.Compare(d.y[a], d.y[b])
 	})
 	scale := 0.0
 	for _, y := range d.y {
@@ -424,13 +431,15 @@ func runsCheck(r *Report, d *dataset, f lsq, pol Policy) Check {
 	if n1 == 0 || n2 == 0 {
 		return notComputed(CheckResidualRuns, "every non-zero residual has the same sign, so the runs test is undefined (this itself points to a biased curve)")
 	}
-	pv := runsCDF(runs, n1, n2)
-	crit := 0
-	for k := 2; k <= n1+n2; k++ {
-		if runsCDF(k, n1, n2) <= pol.RunsAlpha {
+	dist := runsDist(n1, n2)
+	pv, cum, crit := 0.0, 0.0, 0
+	for k := 2; k < len(dist); k++ {
+		cum += dist[k]
+		if k == runs {
+			pv = math.Min(cum, 1)
+		}
+		if cum <= pol.RunsAlpha {
 			crit = k
-		} else {
-			break
 		}
 	}
 	c := Check{Name: CheckResidualRuns, Statistic: float64(runs), Limit: float64(crit), Computed: true, Passed: pv > pol.RunsAlpha}
@@ -446,21 +455,68 @@ func runsCheck(r *Report, d *dataset, f lsq, pol Policy) Check {
 	return c
 }
 
-// runsCDF returns P(R ≤ r) for the number of runs R in a random sequence of
-// n1 and n2 signs (exact: Wald & Wolfowitz 1940).
-func runsCDF(r, n1, n2 int) float64 {
-	total := lchoose(n1+n2, n1)
-	var p float64
-	for k := 2; k <= r; k++ {
-		h := k / 2
-		if k%2 == 0 {
-			p += 2 * math.Exp(lchoose(n1-1, h-1)+lchoose(n2-1, h-1)-total)
-		} else {
-			p += math.Exp(lchoose(n1-1, h)+lchoose(n2-1, h-1)-total) +
-				math.Exp(lchoose(n1-1, h-1)+lchoose(n2-1, h)-total)
+// runsDist returns P(R = r) for r = 0..n1+n2, the exact distribution of
+// the number of runs R in a random sequence of n1 and n2 signs (Wald &
+// Wolfowitz 1940): P(R = 2h) = 2·C(n1−1, h−1)·C(n2−1, h−1)/C(n1+n2, n1),
+// P(R = 2h+1) = [C(n1−1, h)·C(n2−1, h−1) + C(n1−1, h−1)·C(n2−1, h)]/C(n1+n2, n1).
+// Binomials come from log-gamma, so large runs do not overflow.
+func runsDist(n1, n2 int) []float64 {
+	if n1+n2 <= maxCachedRuns {
+		if v, ok := runsCache.Load([2]int{n1, n2}); ok {
+			return v.([]float64)
 		}
 	}
-	return math.Min(p, 1)
+	p := computeRunsDist(n1, n2)
+	if n1+n2 <= maxCachedRuns {
+		runsCache.Store([2]int{n1, n2}, p)
+	}
+	return p
+}
+
+// runsCache holds runsDist by (n1, n2) for runs of up to maxCachedRuns
+// readings (at most 200² small entries); the same splits recur run after
+// run. Callers must not modify the returned slice.
+var runsCache sync.Map
+
+const maxCachedRuns = 200
+
+func computeRunsDist(n1, n2 int) []float64 {
+	n := n1 + n2
+	lt := lchoose(n, n1)
+	a := make([]float64, n1+1) // log C(n1−1, h)
+	b := make([]float64, n2+1) // log C(n2−1, h)
+	for h := range a {
+		a[h] = lchoose(n1-1, h)
+	}
+	for h := range b {
+		b[h] = lchoose(n2-1, h)
+	}
+	at := func(v []float64, h int) float64 {
+		if h < 0 || h >= len(v) {
+			return math.Inf(-1)
+		}
+		return v[h]
+	}
+	p := make([]float64, n+1)
+	for r := 2; r <= n; r++ {
+		h := r / 2
+		if r%2 == 0 {
+			p[r] = 2 * math.Exp(at(a, h-1)+at(b, h-1)-lt)
+		} else {
+			p[r] = math.Exp(at(a, h)+at(b, h-1)-lt) + math.Exp(at(a, h-1)+at(b, h)-lt)
+		}
+	}
+	return p
+}
+
+// runsCDF returns P(R ≤ r) (see runsDist).
+func runsCDF(r, n1, n2 int) float64 {
+	p := runsDist(n1, n2)
+	var c float64
+	for k := 2; k <= r && k < len(p); k++ {
+		c += p[k]
+	}
+	return math.Min(c, 1)
 }
 
 // lchoose returns log C(n, k), −Inf when k < 0 or k > n.

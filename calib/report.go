@@ -27,7 +27,7 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	ratio := raw[0] / planRaw[0] // raw and planRaw may be the same slice
 	w := raw
 	wscale := normalise(w) * ratio
-	f, err := solveLSQ(opt.Model, d.x, d.y, w)
+	des, f, err := fitDesign(opt.Model, d, w)
 	if err != nil {
 		return nil, err
 	}
@@ -102,12 +102,40 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		}
 	}
 	r.Limits = computeLimits(r, f)
-	r.Checks = computeChecks(r, d, f, w, opt.Policy)
+	r.Checks = computeChecks(r, d, des, f, w, opt.Policy)
 	r.Verdict = verdict(r.Checks)
 	if !r.finite() {
 		return nil, inputErr("points", "values are outside the numerically usable range")
 	}
 	return r, nil
+}
+
+// fitDesign factorises once for the model and, where the data allow, the
+// line and the quadratic that Mandel's test and the intercept test compare
+// (columns [1, x, x²], or [x, 1, x²] for the origin model), and fits the
+// model from it. If the extra columns are not usable (x² overflows), the
+// model's own columns are factorised and those checks are not computed.
+func fitDesign(m Model, d *dataset, w []float64) (*design, lsq, error) {
+	n, k := len(d.x), len(d.levels)
+	ext := powers(m)
+	switch {
+	case m == Quadratic:
+	case n >= 4 && k >= 3 && m == Linear:
+		ext = []int{0, 1, 2}
+	case n >= 4 && k >= 3:
+		ext = []int{1, 0, 2}
+	case n >= 3 && m == LinearOrigin:
+		ext = []int{1, 0}
+	}
+	des, err := newDesign(ext, d.x, d.y, w)
+	if err != nil && len(ext) > nParams(m) {
+		des, err = newDesign(powers(m), d.x, d.y, w)
+	}
+	if err != nil {
+		return nil, lsq{}, err
+	}
+	f, err := des.fit(m)
+	return des, f, err
 }
 
 // backCalc reads a point's concentration back from the curve and sets its
