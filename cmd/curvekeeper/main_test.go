@@ -253,3 +253,50 @@ func TestRedactURL(t *testing.T) {
 		t.Errorf("redactURL = %q", got)
 	}
 }
+
+// TestMigrateCommands walks the schema down one step, reports it, and up.
+func TestMigrateCommands(t *testing.T) {
+	url := dbtest.NewURL(t)
+	ctx := context.Background()
+	getenv := func(string) string { return "" }
+	var out strings.Builder
+	for _, args := range [][]string{
+		{"migrate", "version", "--database-url", url},
+		{"migrate", "down", "1", "--database-url", url},
+		{"migrate", "version", "--database-url", url},
+		{"migrate", "up", "--database-url", url},
+		{"migrate", "force", "1", "--database-url", url},
+	} {
+		if err := run(ctx, args, getenv, &out, io.Discard); err != nil {
+			t.Fatalf("%v: %v", args, err)
+		}
+	}
+	lines := strings.Split(strings.TrimSpace(out.String()), "\n")
+	if len(lines) != 5 {
+		t.Fatalf("want 5 lines of output, got:\n%s", out.String())
+	}
+	if !strings.HasPrefix(lines[0], "schema version ") || strings.HasPrefix(lines[0], "schema version 0 ") {
+		t.Errorf("migrated database reports %q", lines[0])
+	}
+	if lines[0] == lines[2] {
+		t.Errorf("down 1 did not change the version: %q", lines[2])
+	}
+	if lines[3] != lines[0] {
+		t.Errorf("up did not return to the latest version: %q vs %q", lines[3], lines[0])
+	}
+	if err := run(ctx, []string{"migrate", "sideways", "--database-url", url}, getenv, io.Discard, io.Discard); exitCode(err) != 2 {
+		t.Errorf("unknown migrate verb: err %v", err)
+	}
+}
+
+// TestFlagsAfterArguments: flags are read wherever they stand.
+func TestFlagsAfterArguments(t *testing.T) {
+	cfg, pos, err := parseConfig("migrate down", []string{"2", "--database-url", "postgres://x@y/z", "extra"},
+		func(string) string { return "" }, io.Discard)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if cfg.DatabaseURL != "postgres://x@y/z" || len(pos) != 2 || pos[0] != "2" || pos[1] != "extra" {
+		t.Errorf("got url %q positional %q", cfg.DatabaseURL, pos)
+	}
+}

@@ -45,7 +45,7 @@ func run(ctx context.Context, args []string, getenv func(string) string, stdout,
 
 const usageText = `usage:
   curvekeeper [serve] [flags]                 serve the HTTP API (default)
-  curvekeeper migrate up|down [N]|version     manage the database schema
+  curvekeeper migrate up|down [N]|force V|version     manage the database schema
   curvekeeper demo [flags]                    load the invented demo scenario, print tokens
   curvekeeper help                            this text
 Run "curvekeeper serve -h" for the flags.
