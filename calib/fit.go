@@ -133,8 +133,10 @@ func prepare(points []Point, model Model) (*dataset, error) {
 	if len(points) == 0 {
 		return nil, inputErr("points", "no calibration points")
 	}
-	labels := make(map[string]float64, len(points))
-	d := &dataset{}
+	lab := newLabels(len(points))
+	n0 := len(points)
+	buf := make([]float64, 2*n0)
+	d := &dataset{idx: make([]int, 0, n0), x: buf[:0:n0], y: buf[n0 : n0 : 2*n0]}
 	for i, p := range points {
 		f := "points[" + strconv.Itoa(i) + "]"
 		if math.IsNaN(p.X) || math.IsInf(p.X, 0) {
@@ -147,10 +149,9 @@ func prepare(points []Point, model Model) (*dataset, error) {
 			return nil, inputErr(f+".y", "response is not a finite number")
 		}
 		if p.Level != "" {
-			if x, ok := labels[p.Level]; ok && x != p.X {
+			if x, ok := lab.add(p.Level, p.X); !ok {
 				return nil, inputErr(f+".level", "level %q has readings at two concentrations (%v and %v)", p.Level, x, p.X)
 			}
-			labels[p.Level] = p.X
 		}
 		if !p.Excluded {
 			d.idx = append(d.idx, i)
@@ -187,6 +188,44 @@ func prepare(points []Point, model Model) (*dataset, error) {
 		return nil, inputErr("points", "all responses are equal (%s): the curve has no slope", fmtG(d.y[0]))
 	}
 	return d, nil
+}
+
+// labels records the concentration of each level label: a short list
+// searched linearly for a typical run, a map for long ones.
+type labels struct {
+	list []labelX
+	m    map[string]float64
+}
+
+type labelX struct {
+	label string
+	x     float64
+}
+
+func newLabels(n int) *labels {
+	if n > 64 {
+		return &labels{m: make(map[string]float64, n)}
+	}
+	return &labels{list: make([]labelX, 0, n)}
+}
+
+// add records label at x; ok is false (with the earlier x) if the label was
+// already seen at another concentration.
+func (l *labels) add(label string, x float64) (float64, bool) {
+	if l.m != nil {
+		if old, seen := l.m[label]; seen {
+			return old, old == x
+		}
+		l.m[label] = x
+		return x, true
+	}
+	for _, e := range l.list {
+		if e.label == label {
+			return e.x, e.x == x
+		}
+	}
+	l.list = append(l.list, labelX{label, x})
+	return x, true
 }
 
 // groupLevels groups the fitted readings by exact nominal concentration.

@@ -3,6 +3,7 @@ package calib
 import (
 	"math"
 	"strconv"
+	"sync"
 )
 
 // cautions are carried by every Report and every Prediction.
@@ -307,12 +308,45 @@ func fmtG(v float64) string {
 	return strconv.FormatFloat(v, 'g', 6, 64)
 }
 
-// fmtG10 formats v with ten significant digits.
-func fmtG10(v float64) string {
-	return strconv.FormatFloat(v, 'g', 10, 64)
-}
-
 // itoa formats an integer for Detail texts.
 func itoa(i int) string {
 	return strconv.Itoa(i)
 }
+
+// text builds Detail texts with one allocation for the finished string
+// rather than one per number and per concatenation.
+type text struct{ b []byte }
+
+// textPool recycles text buffers across checks and fits.
+var textPool = sync.Pool{New: func() any { return &text{b: make([]byte, 0, 512)} }}
+
+// newText returns an empty text from the pool; free returns it.
+func newText() *text {
+	t := textPool.Get().(*text)
+	t.b = t.b[:0]
+	return t
+}
+
+func (t *text) free() { textPool.Put(t) }
+
+func (t *text) s(v string) *text { t.b = append(t.b, v...); return t }
+
+// g appends v with six significant digits.
+func (t *text) g(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 6, 64); return t }
+
+// g10 appends v with ten significant digits.
+func (t *text) g10(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 10, 64); return t }
+
+func (t *text) i(v int) *text { t.b = strconv.AppendInt(t.b, int64(v), 10); return t }
+
+// point names a reading for QA staff: its level label, index and x.
+func (t *text) point(p *PointResult, i int) *text {
+	if p.Level != "" {
+		return t.s(p.Level).s(" (reading ").i(i).s(", x = ").g(p.X).s(")")
+	}
+	return t.s("reading ").i(i).s(" (x = ").g(p.X).s(")")
+}
+
+func (t *text) len() int { return len(t.b) }
+
+func (t *text) str() string { return string(t.b) }
