@@ -110,20 +110,20 @@ func mandelCheck(r *Report, d *dataset, des *design, f lsq, pol Policy) Check {
 	if des.k < 3 {
 		return notComputed(CheckMandel, "the quadratic term x² is outside the numerically usable range")
 	}
-	line, quad := f, f
+	lineSSR, quadSSR := f.ssr, f.ssr
 	var err error
 	if r.Model != Linear {
-		if line, err = des.fit(Linear); err != nil {
+		if lineSSR, err = des.fitSSR(Linear); err != nil {
 			return notComputed(CheckMandel, "the line could not be fitted: "+err.Error())
 		}
 	}
 	if r.Model != Quadratic {
-		if quad, err = des.fit(Quadratic); err != nil {
+		if quadSSR, err = des.fitSSR(Quadratic); err != nil {
 			return notComputed(CheckMandel, "the quadratic could not be fitted: "+err.Error())
 		}
 	}
-	ds2 := math.Max(line.ssr-quad.ssr, 0) // (N−2)s1² − (N−3)s2²
-	s22 := quad.ssr / float64(n-3)
+	ds2 := math.Max(lineSSR-quadSSR, 0) // (N−2)s1² − (N−3)s2²
+	s22 := quadSSR / float64(n-3)
 	if !(s22 > 0) {
 		return notComputed(CheckMandel, "the quadratic fits the readings exactly, so the test statistic is undefined")
 	}
@@ -261,8 +261,13 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 			break
 		}
 	}
-	total, pass := 0, 0
-	levelsOK := make(map[float64]bool)
+	total, pass, levelsOK := 0, 0, 0
+	// passed marks the levels (by index in d.levels) with a passing standard.
+	var passBuf [64]bool
+	passed := passBuf[:]
+	if len(d.levels) > len(passBuf) {
+		passed = make([]bool, len(d.levels))
+	}
 	t, bad := newText(), newText()
 	defer t.free()
 	defer bad.free()
@@ -279,7 +284,10 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 		}
 		if p.HasRelativeError && math.Abs(p.RelativeErrorPct) <= tol {
 			pass++
-			levelsOK[p.X] = true
+			if l := d.levelOf(p.X); !passed[l] {
+				passed[l] = true
+				levelsOK++
+			}
 			continue
 		}
 		if nbad++; nbad <= 10 {
@@ -299,9 +307,9 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 	}
 	frac := float64(pass) / float64(total)
 	c := Check{Name: CheckBackCalculation, Statistic: frac, Limit: pol.BackCalcMinPassFraction, Computed: true,
-		Passed: frac >= pol.BackCalcMinPassFraction && len(levelsOK) >= pol.MinLevels}
+		Passed: frac >= pol.BackCalcMinPassFraction && levelsOK >= pol.MinLevels}
 	t.i(pass).s(" of ").i(total).s(" standards read back within ±").g(pol.BackCalcTolerancePct).
-		s(" % of nominal (±").g(pol.BackCalcLowTolerancePct).s(" % at the lowest level), covering ").i(len(levelsOK)).
+		s(" % of nominal (±").g(pol.BackCalcLowTolerancePct).s(" % at the lowest level), covering ").i(levelsOK).
 		s(" level(s); required: a fraction of ").g(pol.BackCalcMinPassFraction).s(" and ").i(pol.MinLevels).s(" levels.")
 	if bad.len() > 0 {
 		t.s(" Outside tolerance: ").s(bad.str()).s(".")

@@ -28,10 +28,12 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	ratio := raw[0] / planRaw[0] // raw and planRaw may be the same slice
 	w := raw
 	wscale := normalise(w) * ratio
-	des, f, err := fitDesign(opt.Model, d, w)
+	var des design
+	f, err := fitDesign(&des, opt.Model, d, w)
 	if err != nil {
 		return nil, err
 	}
+	defer des.release()
 	n, p := len(d.x), f.p
 	r := &Report{
 		Model:              opt.Model,
@@ -103,7 +105,7 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		}
 	}
 	r.Limits = computeLimits(r, f)
-	r.Checks = computeChecks(r, d, des, f, w, opt.Policy)
+	r.Checks = computeChecks(r, d, &des, f, w, opt.Policy)
 	r.Verdict = verdict(r.Checks)
 	if !r.finite() {
 		return nil, inputErr("points", "values are outside the numerically usable range")
@@ -116,27 +118,34 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 // (columns [1, x, x²], or [x, 1, x²] for the origin model), and fits the
 // model from it. If the extra columns are not usable (x² overflows), the
 // model's own columns are factorised and those checks are not computed.
-func fitDesign(m Model, d *dataset, w []float64) (*design, lsq, error) {
+// The caller releases des when it no longer needs it (on success only).
+func fitDesign(des *design, m Model, d *dataset, w []float64) (lsq, error) {
 	n, k := len(d.x), len(d.levels)
-	ext := powers(m)
+	var ext []int
 	switch {
 	case m == Quadratic:
+		ext = powers(m)
 	case n >= 4 && k >= 3 && m == Linear:
 		ext = []int{0, 1, 2}
 	case n >= 4 && k >= 3:
 		ext = []int{1, 0, 2}
 	case n >= 3 && m == LinearOrigin:
 		ext = []int{1, 0}
+	default:
+		ext = powers(m)
 	}
-	des, err := newDesign(ext, d.x, d.y, w)
+	err := des.init(ext, d.x, d.y, w)
 	if err != nil && len(ext) > nParams(m) {
-		des, err = newDesign(powers(m), d.x, d.y, w)
+		err = des.init(powers(m), d.x, d.y, w)
 	}
 	if err != nil {
-		return nil, lsq{}, err
+		return lsq{}, err
 	}
 	f, err := des.fit(m)
-	return des, f, err
+	if err != nil {
+		des.release()
+	}
+	return f, err
 }
 
 // backCalc reads a point's concentration back from the curve and sets its
@@ -261,46 +270,48 @@ func FailedReport(points []Point, opt Options, cause error) *Report {
 
 // finite reports whether every float in the report is finite.
 func (r *Report) finite() bool {
-	ok := func(v ...float64) bool {
-		for _, x := range v {
-			if math.IsNaN(x) || math.IsInf(x, 0) {
-				return false
-			}
-		}
-		return true
-	}
-	if !ok(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
+	if !finite(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
 		r.WeightScale, r.WeightFloor, r.Variance.C0, r.Variance.C1, r.Variance.Floor,
 		r.Limits.LOD, r.Limits.LOQ, r.Limits.CriticalValue, r.Limits.CriticalConc, r.Limits.DetectionLimit,
 		r.Range.Low, r.Range.High) {
 		return false
 	}
-	if !ok(r.Coefficients...) || !ok(r.StandardErrors...) {
+	if !finite(r.Coefficients...) || !finite(r.StandardErrors...) {
 		return false
 	}
 	for _, row := range r.Covariance {
-		if !ok(row...) {
+		if !finite(row...) {
 			return false
 		}
 	}
 	for _, c := range r.WeightCandidates {
-		if !ok(c.SumAbsRE) {
+		if !finite(c.SumAbsRE) {
 			return false
 		}
 	}
 	for i := range r.Points {
 		p := &r.Points[i]
-		if !ok(p.X, p.Y, p.Weight, p.Fitted, p.Residual, p.WeightedResidual, p.Leverage,
+		if !finite(p.X, p.Y, p.Weight, p.Fitted, p.Residual, p.WeightedResidual, p.Leverage,
 			p.Studentized, p.CooksDistance, p.BackCalculated, p.RelativeErrorPct) {
 			return false
 		}
 	}
 	for _, c := range r.Checks {
-		if !ok(c.Statistic, c.Limit) {
+		if !finite(c.Statistic, c.Limit) {
 			return false
 		}
 	}
 	return true
+}
+
+// finite reports whether every v is neither NaN nor ±Inf (v − v is NaN for
+// both, 0 for every finite v).
+func finite(v ...float64) bool {
+	var s float64
+	for _, x := range v {
+		s += x - x
+	}
+	return s == 0
 }
 
 // fmtG formats v with six significant digits for Detail texts.
