@@ -562,3 +562,36 @@ func (r *relay) cut() {
 	}
 	r.cons = nil
 }
+
+// TestClosedPoolDoesNotLeak closes the service's connection pool under it:
+// whatever the status, the problem carries no cause, only the request id.
+func TestClosedPoolDoesNotLeak(t *testing.T) {
+	t.Parallel()
+	e := newEnv(t)
+	e.db.Close()
+	r := e.get(t, e.admin, "/v1/methods")
+	p := wantProblemAtLeast(t, r, 500)
+	if p.Detail != "internal error" && p.Detail != "the database cannot be reached; retry later" {
+		t.Errorf("detail %q says more than the contract allows", p.Detail)
+	}
+	for _, leak := range []string{"closed", "pool", "store:", "pgx"} {
+		if strings.Contains(string(r.body), leak) {
+			t.Errorf("the problem leaks %q: %s", leak, r.body)
+		}
+	}
+	if p.RequestID == "" || !strings.Contains(e.logs.String(), p.RequestID) {
+		t.Errorf("request id %q is not in the log that holds the cause", p.RequestID)
+	}
+}
+
+func wantProblemAtLeast(t testing.TB, r reply, status int) api.Problem {
+	t.Helper()
+	var p api.Problem
+	if r.status < status {
+		t.Fatalf("status %d, want ≥ %d: %s", r.status, status, snippet(r.body))
+	}
+	if err := json.Unmarshal(r.body, &p); err != nil {
+		t.Fatalf("problem does not decode: %v", err)
+	}
+	return p
+}
