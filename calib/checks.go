@@ -42,7 +42,11 @@ func checkSource(name string, m Model) string {
 // computeChecks evaluates every check of the policy on the fit f of the
 // dataset d with normalised weights w.
 func computeChecks(r *Report, d *dataset, des *design, f lsq, w []float64, pol Policy) []Check {
-	nz := make([]float64, 0, len(d.levels))
+	var nzBuf [64]float64
+	nz := nzBuf[:0]
+	if len(d.levels) > len(nzBuf) {
+		nz = make([]float64, 0, len(d.levels))
+	}
 	for _, lv := range d.levels {
 		nz = append(nz, lv.x)
 	}
@@ -122,7 +126,7 @@ func mandelCheck(r *Report, d *dataset, des *design, f lsq, pol Policy) Check {
 			return notComputed(CheckMandel, "the quadratic could not be fitted: "+err.Error())
 		}
 	}
-	ds2 := math.Max(lineSSR-quadSSR, 0) // (N−2)s1² − (N−3)s2²
+	ds2 := max(lineSSR-quadSSR, 0) // (N−2)s1² − (N−3)s2²
 	s22 := quadSSR / float64(n-3)
 	if !(s22 > 0) {
 		return notComputed(CheckMandel, "the quadratic fits the readings exactly, so the test statistic is undefined")
@@ -139,7 +143,7 @@ func mandelCheck(r *Report, d *dataset, des *design, f lsq, pol Policy) Check {
 	} else {
 		t.s(" ≤ ")
 	}
-	t.s("F(").g(1 - pol.MandelAlpha).s("; 1, ").i(n - 3).s(") = ").g(fc)
+	t.s("F(").gc(1 - pol.MandelAlpha).s("; 1, ").i(n - 3).s(") = ").gc(fc)
 	switch {
 	case r.Model == Quadratic && better:
 		t.s(": the quadratic fits significantly better than a line, so the quadratic model is justified.")
@@ -185,7 +189,7 @@ func lackOfFitCheck(d *dataset, f lsq, w []float64, pol Policy) Check {
 	if !(sspe > 0) {
 		return notComputed(CheckLackOfFit, "the replicates are identical (pure error 0), so the F ratio is undefined")
 	}
-	sslof := math.Max(f.ssr-sspe, 0)
+	sslof := max(f.ssr-sspe, 0)
 	fs := (sslof / float64(k-p)) / (sspe / float64(n-k))
 	fc := fQuantile(1-pol.LackOfFitAlpha, k-p, n-k)
 	c := Check{Name: CheckLackOfFit, Statistic: fs, Limit: fc, Computed: true, Passed: fs <= fc}
@@ -197,7 +201,7 @@ func lackOfFitCheck(d *dataset, f lsq, w []float64, pol Policy) Check {
 	} else {
 		t.s(" > ")
 	}
-	t.s("F(").g(1 - pol.LackOfFitAlpha).s("; ").i(k - p).s(", ").i(n - k).s(") = ").g(fc)
+	t.s("F(").gc(1 - pol.LackOfFitAlpha).s("; ").i(k - p).s(", ").i(n - k).s(") = ").gc(fc)
 	if c.Passed {
 		t.s(": the scatter of the level means about the curve is consistent with the scatter of the replicates.")
 	} else {
@@ -234,7 +238,7 @@ func homoscedasticityCheck(r *Report, d *dataset, pol Policy) Check {
 	} else {
 		t.s(" > ")
 	}
-	t.s("F(").g(1 - pol.HomoscedasticityAlpha).s("; ").i(dn).s(", ").i(dd).s(") = ").g(fc)
+	t.s("F(").gc(1 - pol.HomoscedasticityAlpha).s("; ").i(dn).s(", ").i(dd).s(") = ").gc(fc)
 	switch {
 	case c.Passed:
 		t.s(": the response variance at the lowest and highest standard does not differ significantly.")
@@ -308,9 +312,9 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 	frac := float64(pass) / float64(total)
 	c := Check{Name: CheckBackCalculation, Statistic: frac, Limit: pol.BackCalcMinPassFraction, Computed: true,
 		Passed: frac >= pol.BackCalcMinPassFraction && levelsOK >= pol.MinLevels}
-	t.i(pass).s(" of ").i(total).s(" standards read back within ±").g(pol.BackCalcTolerancePct).
-		s(" % of nominal (±").g(pol.BackCalcLowTolerancePct).s(" % at the lowest level), covering ").i(levelsOK).
-		s(" level(s); required: a fraction of ").g(pol.BackCalcMinPassFraction).s(" and ").i(pol.MinLevels).s(" levels.")
+	t.i(pass).s(" of ").i(total).s(" standards read back within ±").gc(pol.BackCalcTolerancePct).
+		s(" % of nominal (±").gc(pol.BackCalcLowTolerancePct).s(" % at the lowest level), covering ").i(levelsOK).
+		s(" level(s); required: a fraction of ").gc(pol.BackCalcMinPassFraction).s(" and ").i(pol.MinLevels).s(" levels.")
 	if bad.len() > 0 {
 		t.s(" Outside tolerance: ").s(bad.str()).s(".")
 	}
@@ -336,7 +340,7 @@ func rSquaredCheck(r *Report, pol Policy) Check {
 	} else {
 		t.g(r.RSquared)
 	}
-	t.s(" against a minimum of ").g(pol.MinRSquared)
+	t.s(" against a minimum of ").gc(pol.MinRSquared)
 	switch {
 	case r.Model == LinearOrigin:
 		t.s(" (uncentred R² of the origin model, which is larger than a centred one)")
@@ -374,7 +378,7 @@ func rseCheck(r *Report, d *dataset, pol Policy) Check {
 	t := newText()
 	defer t.free()
 	c.Detail = t.s("RSE = ").g(rse).s(" % over ").i(n).s(" standards (n − p = ").i(n - p).
-		s(") against a maximum of ").g(pol.MaxRSEPct).s(" %.").str()
+		s(") against a maximum of ").gc(pol.MaxRSEPct).s(" %.").str()
 	return c
 }
 
@@ -415,7 +419,7 @@ func interceptCheck(r *Report, des *design, f lsq, pol Policy) Check {
 	} else {
 		t.s(", |t| > ")
 	}
-	t.s("t(").g(1 - pol.InterceptAlpha/2).s("; ").i(df).s(") = ").g(tc)
+	t.s("t(").gc(1 - pol.InterceptAlpha/2).s("; ").i(df).s(") = ").gc(tc)
 	switch {
 	case c.Passed:
 		t.s(": the intercept does not differ significantly from zero.")

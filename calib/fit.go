@@ -135,12 +135,14 @@ func prepare(points []Point, model Model) (*dataset, error) {
 		return nil, inputErr("points", "no calibration points")
 	}
 	n0 := len(points)
-	var lab labels
-	var list [64]labelX
-	if n0 > len(list) {
-		lab.m = make(map[string]float64, n0)
-	} else {
-		lab.list = list[:0]
+	// The concentration of each level label: a short list searched
+	// linearly for a typical run (backed by a stack array), a map for long
+	// ones.
+	var labelBuf [64]labelX
+	labels := labelBuf[:0]
+	var labelMap map[string]float64
+	if n0 > len(labelBuf) {
+		labelMap = make(map[string]float64, n0)
 	}
 	buf := make([]float64, 2*n0)
 	ints := make([]int, 2*n0) // idx, then the level order of groupLevels
@@ -158,7 +160,16 @@ func prepare(points []Point, model Model) (*dataset, error) {
 			return nil, inputErr(field(".y"), "response is not a finite number")
 		}
 		if p.Level != "" {
-			if x, ok := lab.add(p.Level, p.X); !ok {
+			var x float64
+			seen := false
+			if labelMap != nil {
+				if x, seen = labelMap[p.Level]; !seen {
+					labelMap[p.Level] = p.X
+				}
+			} else {
+				labels, x, seen = findLabel(labels, p.Level, p.X)
+			}
+			if seen && x != p.X {
 				return nil, inputErr(field(".level"), "level %q has readings at two concentrations (%v and %v)", p.Level, x, p.X)
 			}
 		}
@@ -199,41 +210,32 @@ func prepare(points []Point, model Model) (*dataset, error) {
 	return d, nil
 }
 
-// labels records the concentration of each level label: a short list
-// searched linearly for a typical run (prepare backs it with a stack
-// array), a map for long ones.
-type labels struct {
-	list []labelX
-	m    map[string]float64
-}
-
+// labelX is a level label and its concentration.
 type labelX struct {
 	label string
 	x     float64
 }
 
-// add records label at x; ok is false (with the earlier x) if the label was
-// already seen at another concentration.
-func (l *labels) add(label string, x float64) (float64, bool) {
-	if l.m != nil {
-		if old, seen := l.m[label]; seen {
-			return old, old == x
-		}
-		l.m[label] = x
-		return x, true
+// findLabel returns the x of label in list and true if it is there, else
+// list with (label, x) appended and false. It takes and returns the slice,
+// so that a list backed by the caller's stack array stays there.
+func findLabel(list []labelX, label string, x float64) ([]labelX, float64, bool) {
+	// Readings of one level usually follow each other: try the last first.
+	if k := len(list) - 1; k >= 0 && list[k].label == label {
+		return list, list[k].x, true
 	}
-	for _, e := range l.list {
+	for _, e := range list {
 		if e.label == label {
-			return e.x, e.x == x
+			return list, e.x, true
 		}
 	}
-	l.list = append(l.list, labelX{label, x})
-	return x, true
+	return append(list, labelX{label, x}), x, false
 }
 
 // groupLevels groups the fitted readings by exact nominal concentration.
 func (d *dataset) groupLevels() {
 	order := d.order[:len(d.x)]
+	d.order = order
 	for i := range order {
 		order[i] = i
 	}

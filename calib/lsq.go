@@ -230,7 +230,7 @@ func (d *design) solve(model Model, out *lsq, full bool) error {
 	var rinv [3][3]float64
 	maxd := 0.0
 	for j := 0; j < p; j++ {
-		maxd = math.Max(maxd, math.Abs(d.r[j][j]))
+		maxd = max(maxd, math.Abs(d.r[j][j]))
 	}
 	for j := 0; j < p; j++ {
 		if !(math.Abs(d.r[j][j]) > 1e-11*maxd) {

@@ -4,6 +4,7 @@ import (
 	"math"
 	"strconv"
 	"sync"
+	"sync/atomic"
 )
 
 // cautions are carried by every Report and every Prediction.
@@ -18,6 +19,24 @@ var cautions = []string{
 func Cautions() []string {
 	return append([]string(nil), cautions...)
 }
+
+// weightConvention returns the Report's WeightConvention for n readings;
+// the texts of short runs are kept, as the same n recurs run after run.
+func weightConvention(n int) string {
+	if n < len(conventions) {
+		if s := conventions[n].Load(); s != nil {
+			return *s
+		}
+	}
+	s := "weights normalised to sum to n = " + strconv.Itoa(n) +
+		" (Σw = n) before residual_sd is computed (Miller & Miller §5.10); an unknown's weight w0 is the scheme's raw weight times weight_scale, on the same scale"
+	if n < len(conventions) {
+		conventions[n].Store(&s)
+	}
+	return s
+}
+
+var conventions [128]atomic.Pointer[string]
 
 // build fits the dataset with the given raw weights (normalised here to
 // Σw = n) and assembles the full Report: coefficients, diagnostics, checks,
@@ -40,26 +59,26 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		Weighting:          wp.scheme,
 		WeightingRequested: opt.Weighting,
 		WeightCandidates:   scores,
-		WeightConvention: "weights normalised to sum to n = " + strconv.Itoa(n) +
-			" (Σw = n) before residual_sd is computed (Miller & Miller §5.10); an unknown's weight w0 is the scheme's raw weight times weight_scale, on the same scale",
-		ZeroHandling: wp.zero,
-		WeightScale:  wscale,
-		WeightFloor:  wp.floor,
-		Variance:     wp.vm,
-		ResidualSD:   f.s,
-		DF:           f.df,
-		RSquared:     f.r2,
-		N:            n,
-		Levels:       len(d.levels),
-		Confidence:   opt.Confidence,
-		Range:        Range{Low: d.levels[0].x, High: d.levels[len(d.levels)-1].x},
-		Cautions:     Cautions(),
-		Engine:       EngineVersion,
+		WeightConvention:   weightConvention(n),
+		ZeroHandling:       wp.zero,
+		WeightScale:        wscale,
+		WeightFloor:        wp.floor,
+		Variance:           wp.vm,
+		ResidualSD:         f.s,
+		DF:                 f.df,
+		RSquared:           f.r2,
+		N:                  n,
+		Levels:             len(d.levels),
+		Confidence:         opt.Confidence,
+		Range:              Range{Low: d.levels[0].x, High: d.levels[len(d.levels)-1].x},
+		Cautions:           Cautions(),
+		Engine:             EngineVersion,
 	}
 	r.Coefficients = f.beta
-	r.StandardErrors = make([]float64, p)
+	seCov := make([]float64, p+p*p)
+	r.StandardErrors = seCov[:p:p]
 	r.Covariance = make([][]float64, p)
-	covBuf := make([]float64, p*p)
+	covBuf := seCov[p:]
 	s2 := f.s * f.s
 	for j := 0; j < p; j++ {
 		r.Covariance[j] = covBuf[j*p : (j+1)*p : (j+1)*p]
@@ -344,6 +363,47 @@ func (t *text) s(v string) *text { t.b = append(t.b, v...); return t }
 
 // g appends v with six significant digits.
 func (t *text) g(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 6, 64); return t }
+
+// gc appends v exactly as g does, from a small cache: for the values that
+// recur run after run (policy thresholds and t and F quantiles), whose
+// formatting would otherwise cost more than the arithmetic of the check.
+func (t *text) gc(v float64) *text { t.b = append(t.b, cachedG(v)...); return t }
+
+// gEntry is one formatted value of gCache.
+type gEntry struct {
+	bits uint64
+	s    string
+}
+
+// gCache caches fmtG by the value's bits, four-way set associative (so a
+// few colliding values do not evict each other run after run). Entries are
+// replaced whole through atomic pointers, so concurrent fits may share it.
+var gCache [1024]atomic.Pointer[gEntry]
+
+// cachedG returns fmtG(v), from gCache when it holds v.
+func cachedG(v float64) string {
+	b := math.Float64bits(v)
+	set := gCache[((b*0x9e3779b97f4a7c15)>>56)*4:][:4]
+	free := -1
+	for i := range set {
+		e := set[i].Load()
+		if e == nil {
+			if free < 0 {
+				free = i
+			}
+			continue
+		}
+		if e.bits == b {
+			return e.s
+		}
+	}
+	if free < 0 {
+		free = int(b>>52) & 3 // a full set: replace one, chosen by the value
+	}
+	e := &gEntry{bits: b, s: fmtG(v)}
+	set[free].Store(e)
+	return e.s
+}
 
 // g10 appends v with ten significant digits.
 func (t *text) g10(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 10, 64); return t }

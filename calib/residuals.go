@@ -14,19 +14,37 @@ import (
 // distribution against RunsAlpha. Limit is the largest significant number
 // of runs (0 when none is: too few residuals of a sign).
 func runsCheck(r *Report, d *dataset, f lsq, pol Policy) Check {
-	order := make([]int, len(d.x))
-	for i := range order {
-		order[i] = i
+	// d.order is sorted by x; sort each level's readings by y (insertion
+	// sort: a level holds a few replicates). Readings with equal x and y
+	// have equal residuals, so any such order gives the same runs.
+	var buf [64]int
+	order := buf[:0]
+	if len(d.order) > len(buf) {
+		order = make([]int, 0, len(d.order))
 	}
-	slices.SortFunc(order, func(a, b int) int {
-		if c := cmp.Compare(d.x[a], d.x[b]); c != 0 {
-			return c
+	order = append(order, d.order...)
+	byY := func(a, b int) int { return cmp.Compare(d.y[a], d.y[b]) }
+	for a := 0; a < len(order); {
+		b := a + 1
+		for b < len(order) && d.x[order[b]] == d.x[order[a]] {
+			b++
 		}
-		return cmp.Compare(d.y[a], d.y[b])
-	})
+		if run := order[a:b]; len(run) > 16 {
+			slices.SortFunc(run, byY)
+		} else {
+			for k := 1; k < len(run); k++ {
+				i, j := run[k], k
+				for ; j > 0 && d.y[run[j-1]] > d.y[i]; j-- {
+					run[j] = run[j-1]
+				}
+				run[j] = i
+			}
+		}
+		a = b
+	}
 	scale := 0.0
 	for _, y := range d.y {
-		scale = math.Max(scale, math.Abs(y))
+		scale = max(scale, math.Abs(y))
 	}
 	n1, n2, runs, last := 0, 0, 0, 0
 	for _, i := range order {
@@ -56,7 +74,7 @@ func runsCheck(r *Report, d *dataset, f lsq, pol Policy) Check {
 	for k := 2; k < len(dist); k++ {
 		cum += dist[k]
 		if k == runs {
-			pv = math.Min(cum, 1)
+			pv = min(cum, 1)
 		}
 		if cum <= pol.RunsAlpha {
 			crit = k
@@ -67,9 +85,9 @@ func runsCheck(r *Report, d *dataset, f lsq, pol Policy) Check {
 	defer t.free()
 	t.i(runs).s(" runs of residual signs (").i(n1).s(" positive, ").i(n2).s(" negative), P(R ≤ ").i(runs).s(") = ").g(pv)
 	if c.Passed {
-		t.s(" > ").g(pol.RunsAlpha).s(": no sign of systematic curvature.")
+		t.s(" > ").gc(pol.RunsAlpha).s(": no sign of systematic curvature.")
 	} else {
-		t.s(" ≤ ").g(pol.RunsAlpha).s(": too few runs, the residuals follow a pattern (curvature or a wrong model).")
+		t.s(" ≤ ").gc(pol.RunsAlpha).s(": too few runs, the residuals follow a pattern (curvature or a wrong model).")
 	}
 	if crit == 0 {
 		t.s(" With so few residuals of each sign no run count is significant; the test has no power here.")
@@ -139,7 +157,7 @@ func runsCDF(r, n1, n2 int) float64 {
 	for k := 2; k <= r && k < len(p); k++ {
 		c += p[k]
 	}
-	return math.Min(c, 1)
+	return min(c, 1)
 }
 
 // lchoose returns log C(n, k), −Inf when k < 0 or k > n.
@@ -167,8 +185,8 @@ func outlierCheck(r *Report, d *dataset, pol Policy) Check {
 			lev1++
 		}
 		a := math.Abs(p.Studentized)
-		maxR = math.Max(maxR, a)
-		maxD = math.Max(maxD, p.CooksDistance)
+		maxR = max(maxR, a)
+		maxD = max(maxD, p.CooksDistance)
 		if a > pol.OutlierStudentized || p.CooksDistance > pol.OutlierCooksD {
 			if nbad++; nbad <= 10 {
 				if nbad > 1 {
@@ -182,8 +200,8 @@ func outlierCheck(r *Report, d *dataset, pol Policy) Check {
 		Passed: maxR <= pol.OutlierStudentized && maxD <= pol.OutlierCooksD}
 	t := newText()
 	defer t.free()
-	t.s("Largest |studentised residual| ").g(maxR).s(" (limit ").g(pol.OutlierStudentized).
-		s("), largest Cook's distance ").g(maxD).s(" (limit ").g(pol.OutlierCooksD).s(").")
+	t.s("Largest |studentised residual| ").g(maxR).s(" (limit ").gc(pol.OutlierStudentized).
+		s("), largest Cook's distance ").g(maxD).s(" (limit ").gc(pol.OutlierCooksD).s(").")
 	if nbad > 0 {
 		t.s(" Flagged: ").s(bad.str()).s(".")
 	}
