@@ -101,7 +101,7 @@ func TestCrashLosesNothing(t *testing.T) {
 	dataDir := shortTempDir(t)
 	admin := newSecret(t)
 	env := []string{"CURVEKEEPER_DATA_DIR=" + dataDir, "CURVEKEEPER_BOOTSTRAP_TOKEN=" + admin}
-	svc := startService(t, bin, env, "--request-timeout", "20s", "--rate-limit", "0")
+	svc := startProc(t, bin, env, "--request-timeout", "20s", "--rate-limit", "0")
 	c := newClient(t, nil)
 	c.must(http.StatusCreated, "POST", svc.base+"/v1/methods", admin, methodBody())
 	_, inst := c.issueToken(svc.base, admin, "ic-02-uploader", "runs:write")
@@ -120,7 +120,7 @@ func TestCrashLosesNothing(t *testing.T) {
 	res.checkBad(t)
 	t.Logf("before the kill: %s", res.summary())
 
-	svc2 := startService(t, bin, env, "--request-timeout", "20s", "--rate-limit", "0")
+	svc2 := startProc(t, bin, env, "--request-timeout", "20s", "--rate-limit", "0")
 	pool := openPool(t, clusterURL(dataDir))
 	before := checkStoredIntegrity(t, pool)
 	checked, lost := c.checkAcknowledged(svc2.base, admin, res.acked)
@@ -165,7 +165,7 @@ func TestDatabaseOutage(t *testing.T) {
 	const requestTimeout = 5 * time.Second
 	admin := newSecret(t)
 	env := []string{"DATABASE_URL=" + cl.URL(), "CURVEKEEPER_BOOTSTRAP_TOKEN=" + admin}
-	svc := startService(t, bin, env, "--request-timeout", requestTimeout.String(), "--rate-limit", "0")
+	svc := startProc(t, bin, env, "--request-timeout", requestTimeout.String(), "--rate-limit", "0")
 	c := newClient(t, nil)
 	c.must(http.StatusCreated, "POST", svc.base+"/v1/methods", admin, methodBody())
 	_, inst := c.issueToken(svc.base, admin, "ic-02-uploader", "runs:write")
@@ -265,11 +265,11 @@ func TestTwoReplicas(t *testing.T) {
 	dbURL := dbtest.NewEmptyURL(t)
 	admin := newSecret(t)
 	env := []string{"DATABASE_URL=" + dbURL, "CURVEKEEPER_BOOTSTRAP_TOKEN=" + admin}
-	a := launch(t, bin, env, "--rate-limit", "0")
-	b := launch(t, bin, env, "--rate-limit", "0")
+	a := launchProc(t, bin, env, "--rate-limit", "0")
+	b := launchProc(t, bin, env, "--rate-limit", "0")
 	a.ready()
 	b.ready()
-	replicas := []*service{a, b}
+	replicas := []*proc{a, b}
 
 	pool := openPool(t, dbURL)
 	ctx := context.Background()
@@ -375,7 +375,7 @@ func TestShutdownDrains(t *testing.T) {
 	dbURL := dbtest.NewURL(t)
 	admin := newSecret(t)
 	env := []string{"DATABASE_URL=" + dbURL, "CURVEKEEPER_BOOTSTRAP_TOKEN=" + admin}
-	svc := startService(t, bin, env, "--shutdown-timeout", "30s", "--rate-limit", "0")
+	svc := startProc(t, bin, env, "--shutdown-timeout", "30s", "--rate-limit", "0")
 	c := newClient(t, nil)
 	c.must(http.StatusCreated, "POST", svc.base+"/v1/methods", admin, methodBody())
 	_, inst := c.issueToken(svc.base, admin, "ic-02-uploader", "runs:write")

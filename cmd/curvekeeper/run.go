@@ -46,7 +46,7 @@ func run(ctx context.Context, args []string, getenv func(string) string, stdout,
 
 const usageText = `usage:
   curvekeeper [serve] [flags]                 serve the HTTP API (default)
-  curvekeeper migrate up|down [N]|version     manage the database schema
+  curvekeeper migrate up|down [N]|force V|version     manage the database schema
   curvekeeper demo [flags]                    load the invented demo scenario, print tokens
   curvekeeper help                            this text
 Run "curvekeeper serve -h" for the flags.
@@ -127,7 +127,7 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 	defer cancel()
 	db, err := store.OpenApp(connectCtx, dbase.url)
 	if err != nil {
-		return fmt.Errorf("cannot reach the database (%s): %v", redactURL(dbase.url), errors.Unwrap(err))
+		return fmt.Errorf("cannot reach the database (%s): %s", redactURL(dbase.url), oneLine(errors.Unwrap(err)))
 	}
 	defer db.Close()
 	if err := store.MigrateUp(ctx, dbase.url, cfg.MigrateLockWait); err != nil {
@@ -204,6 +204,24 @@ func loadTLS(cfg config) (*tls.Config, error) {
 		return nil, fmt.Errorf("load --tls-cert %s and --tls-key %s: %w", cfg.TLSCert, cfg.TLSKey, err)
 	}
 	return &tls.Config{MinVersion: tls.VersionTLS12, Certificates: []tls.Certificate{cert}}, nil
+}
+
+// oneLine folds a multi-line error (pgconn lists each address tried on its
+// own line) into one line, dropping repeated parts.
+func oneLine(err error) string {
+	if err == nil {
+		return ""
+	}
+	var parts []string
+	seen := map[string]bool{}
+	for _, p := range strings.Split(err.Error(), "\n") {
+		p = strings.TrimSpace(p)
+		if p != "" && !seen[p] {
+			seen[p] = true
+			parts = append(parts, p)
+		}
+	}
+	return strings.Join(parts, " ")
 }
 
 // redactURL hides a password in a database URL.

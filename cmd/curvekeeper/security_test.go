@@ -39,7 +39,7 @@ func TestTokensNeverLeak(t *testing.T) {
 	dbURL := dbtest.NewURL(t)
 	admin := newSecret(t)
 	env := []string{"DATABASE_URL=" + dbURL, "CURVEKEEPER_BOOTSTRAP_TOKEN=" + admin}
-	svc := startService(t, bin, env, "--log-level", "debug", "--rate-limit", "0")
+	svc := startProc(t, bin, env, "--log-level", "debug", "--rate-limit", "0")
 	c := newClient(t, nil)
 	base := svc.base
 
@@ -229,7 +229,7 @@ func TestTLSAndRateLimit(t *testing.T) {
 	certFile, keyFile, cert := selfSigned(t, t.TempDir())
 	admin := newSecret(t)
 	env := []string{"DATABASE_URL=" + dbtest.NewURL(t), "CURVEKEEPER_BOOTSTRAP_TOKEN=" + admin}
-	svc := startService(t, bin, env, "--tls-cert", certFile, "--tls-key", keyFile, "--rate-limit", "0.01", "--rate-burst", "5")
+	svc := startProc(t, bin, env, "--tls-cert", certFile, "--tls-key", keyFile, "--rate-limit", "0.01", "--rate-burst", "5")
 	if !strings.HasPrefix(svc.base, "https://") {
 		t.Fatalf("service listens on %s, want https", svc.base)
 	}

@@ -29,12 +29,7 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5/pgxpool"
-
-	"curvekeeper/store/dbtest"
 )
-
-// TestMain gives the tests real PostgreSQL databases through dbtest.
-func TestMain(m *testing.M) { dbtest.Main(m) }
 
 // startupTimeout bounds a service's start, private cluster included.
 const startupTimeout = 90 * time.Second
@@ -50,48 +45,49 @@ func buildBinary(t *testing.T) string {
 	return bin
 }
 
-// lockedBuffer collects a child's output; written by a copying goroutine,
+// procBuffer collects a child's output; written by a copying goroutine,
 // read by the test.
-type lockedBuffer struct {
+type procBuffer struct {
 	mu  sync.Mutex
 	buf bytes.Buffer
 }
 
-func (b *lockedBuffer) Write(p []byte) (int, error) {
+func (b *procBuffer) Write(p []byte) (int, error) {
 	b.mu.Lock()
 	defer b.mu.Unlock()
 	return b.buf.Write(p)
 }
 
-func (b *lockedBuffer) String() string {
+func (b *procBuffer) String() string {
 	b.mu.Lock()
 	defer b.mu.Unlock()
 	return b.buf.String()
 }
 
-// service is one running curvekeeper process.
-type service struct {
+// proc is one running curvekeeper process (the built binary; main_test.go's
+// service runs run() in-process instead).
+type proc struct {
 	t      *testing.T
 	cmd    *exec.Cmd
 	base   string // http://127.0.0.1:port
-	stdout *lockedBuffer
-	stderr *lockedBuffer
+	stdout *procBuffer
+	stderr *procBuffer
 	addr   chan string   // receives the URL the service prints
 	done   chan struct{} // closed when the process has exited
 	err    error         // its exit status, after done
 }
 
-// startService runs the binary with args and env (added to a clean copy of
+// startProc runs the binary with args and env (added to a clean copy of
 // the test's environment) and waits until it prints its address.
-func startService(t *testing.T, bin string, env []string, args ...string) *service {
+func startProc(t *testing.T, bin string, env []string, args ...string) *proc {
 	t.Helper()
-	s := launch(t, bin, env, args...)
+	s := launchProc(t, bin, env, args...)
 	s.ready()
 	return s
 }
 
-// launch starts the binary without waiting for it; ready waits.
-func launch(t *testing.T, bin string, env []string, args ...string) *service {
+// launchProc starts the binary without waiting for it; ready waits.
+func launchProc(t *testing.T, bin string, env []string, args ...string) *proc {
 	t.Helper()
 	cmd := exec.Command(bin, append([]string{"serve", "--listen", "127.0.0.1:0"}, args...)...)
 	for _, kv := range os.Environ() {
@@ -100,7 +96,7 @@ func launch(t *testing.T, bin string, env []string, args ...string) *service {
 		}
 	}
 	cmd.Env = append(cmd.Env, env...)
-	s := &service{t: t, cmd: cmd, stdout: &lockedBuffer{}, stderr: &lockedBuffer{}, done: make(chan struct{})}
+	s := &proc{t: t, cmd: cmd, stdout: &procBuffer{}, stderr: &procBuffer{}, done: make(chan struct{})}
 	outPipe, err := cmd.StdoutPipe()
 	if err != nil {
 		t.Fatal(err)
@@ -136,7 +132,7 @@ func launch(t *testing.T, bin string, env []string, args ...string) *service {
 }
 
 // ready waits until the service prints the address it listens on.
-func (s *service) ready() {
+func (s *proc) ready() {
 	t := s.t
 	t.Helper()
 	select {
@@ -151,7 +147,7 @@ func (s *service) ready() {
 }
 
 // kill sends SIGKILL (unless the process has exited) and waits for it.
-func (s *service) kill() {
+func (s *proc) kill() {
 	select {
 	case <-s.done:
 		return
@@ -162,7 +158,7 @@ func (s *service) kill() {
 }
 
 // signal sends sig to the process.
-func (s *service) signal(sig os.Signal) {
+func (s *proc) signal(sig os.Signal) {
 	s.t.Helper()
 	if err := s.cmd.Process.Signal(sig); err != nil {
 		s.t.Fatalf("signal %v: %v", sig, err)
@@ -170,7 +166,7 @@ func (s *service) signal(sig os.Signal) {
 }
 
 // wait waits up to d for the process to exit and returns its exit error.
-func (s *service) wait(d time.Duration) error {
+func (s *proc) wait(d time.Duration) error {
 	s.t.Helper()
 	select {
 	case <-s.done:
@@ -182,7 +178,7 @@ func (s *service) wait(d time.Duration) error {
 }
 
 // logs is everything the process wrote.
-func (s *service) logs() string { return s.stdout.String() + s.stderr.String() }
+func (s *proc) logs() string { return s.stdout.String() + s.stderr.String() }
 
 func tailLines(s string, n int) string {
 	lines := strings.Split(strings.TrimRight(s, "\n"), "\n")
