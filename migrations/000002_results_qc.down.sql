@@ -1,5 +1,4 @@
 -- Drops what 000002_results_qc.up.sql added, in reverse order.
-DROP INDEX IF EXISTS curves_in_force;
 DROP TABLE IF EXISTS exclusions;
 DROP TABLE IF EXISTS verifications;
 DROP TABLE IF EXISTS result_events;

@@ -166,6 +166,5 @@ CREATE TRIGGER exclusions_immutable BEFORE UPDATE OR DELETE ON exclusions
 CREATE TRIGGER exclusions_no_truncate BEFORE TRUNCATE ON exclusions
     FOR EACH STATEMENT EXECUTE FUNCTION reject_change();
 
--- The curve in force: newest usable curve of an instrument and analyte.
-CREATE INDEX curves_in_force ON curves (instrument, analyte, acquired_at DESC, id DESC)
-    WHERE status <> 'rejected';
+-- The curve in force is found by curves_history (instrument, analyte,
+-- acquired_at DESC, id DESC) of 000001_core; no index of its own.
