@@ -191,8 +191,14 @@ func (s *Server) prepareRun(m *store.Method, body *oapi.RunRequest) (store.RunIn
 			Concentration: st.Concentration, Responses: st.Responses})
 	}
 	if body.Samples != nil {
+		type sampleKey struct{ analyte, id string }
+		seenSample := map[sampleKey]bool{}
 		for i, sm := range *body.Samples {
 			a := string(sm.Analyte)
+			if seenSample[sampleKey{a, string(sm.ID)}] {
+				return in, nil, store.FieldError(pointer("samples", i, "id"), "sample %q of %s appears twice; sample ids are unique per analyte within a run", sm.ID, a)
+			}
+			seenSample[sampleKey{a, string(sm.ID)}] = true
 			if _, ok := m.Analyte(a); !ok {
 				return in, nil, store.FieldError(pointer("samples", i, "analyte"), "method %s does not list the analyte %q", m.Name, a)
 			}
