@@ -87,7 +87,7 @@ CREATE TRIGGER sample_results_no_truncate BEFORE TRUNCATE ON sample_results
 
 -- ---------------------------------------------------------------------------
 -- The change feed. seq is drawn only while the writing transaction holds the
--- transaction-level advisory lock store.resultFeedLockKey, which it keeps
+-- transaction-level advisory lock store.ResultFeedLockKey, which it keeps
 -- until it commits, so sequence numbers are handed out in commit order and a
 -- reader paging by seq never passes a number that a later commit could still
 -- fill (see store/result_feed.go).

@@ -30,7 +30,7 @@ const (
 	MaxFeedLimit     = 1000
 )
 
-// resultFeedLockKey names the transaction-level advisory lock every writer
+// ResultFeedLockKey names the transaction-level advisory lock every writer
 // of result_events holds from the moment it draws its first sequence number
 // until it commits or rolls back ("ck_feed").
 //
@@ -53,7 +53,7 @@ const (
 // not order commits. The lock costs writers of results one commit at a time,
 // taken at the very end of the transaction (after every row lock it needs,
 // so it cannot deadlock with them), and costs readers nothing.
-const resultFeedLockKey int64 = 0x636b5f66656564 // "ck_feed"
+const ResultFeedLockKey int64 = 0x636b5f66656564 // "ck_feed"
 
 // resultEvent is one event about to be written.
 type resultEvent struct {
@@ -77,7 +77,7 @@ func flushEvents(ctx context.Context, tx pgx.Tx, b *eventBuffer) error {
 	if len(b.events) == 0 {
 		return nil
 	}
-	if _, err := tx.Exec(ctx, `SELECT pg_advisory_xact_lock($1)`, resultFeedLockKey); err != nil {
+	if _, err := tx.Exec(ctx, `SELECT pg_advisory_xact_lock($1)`, ResultFeedLockKey); err != nil {
 		return classify("take the result feed lock", err)
 	}
 	n := len(b.events)
@@ -153,7 +153,7 @@ func decodeFeedCursor(s string) (int64, error) {
 
 // ResultFeed returns the events after cursor since ("" for the start), in
 // sequence order, at most limit (0 means DefaultFeedLimit). Because event
-// writers are serialised until commit (resultFeedLockKey), a page never skips
+// writers are serialised until commit (ResultFeedLockKey), a page never skips
 // an event that commits later: following NextCursor sees every event exactly
 // once.
 func (db *DB) ResultFeed(ctx context.Context, since string, limit int) (*FeedPage, error) {

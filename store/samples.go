@@ -109,9 +109,15 @@ func (db *DB) AddSamples(ctx context.Context, runID string, samples []Sample, ac
 	}
 	var out []Result
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
+		// The curve locks come first: they serialise writers of this run's
+		// samples, so the next position read below is this transaction's own.
+		curves, err := lockLiveCurves(ctx, tx, runID)
+		if err != nil {
+			return err
+		}
 		var runAt time.Time
 		var next int
-		err := tx.QueryRow(ctx, `
+		err = tx.QueryRow(ctx, `
 SELECT r.acquired_at, coalesce((SELECT max(position) + 1 FROM run_samples WHERE run_id = r.id), 0)
 FROM runs r WHERE r.id = $1`, runID).Scan(&runAt, &next)
 		if errors.Is(err, pgx.ErrNoRows) {
@@ -119,10 +125,6 @@ FROM runs r WHERE r.id = $1`, runID).Scan(&runAt, &next)
 		}
 		if err != nil {
 			return classify("select run "+runID, err)
-		}
-		curves, err := lockLiveCurves(ctx, tx, runID)
-		if err != nil {
-			return err
 		}
 		type key struct{ analyte, id string }
 		seen := map[key]bool{}
