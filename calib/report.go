@@ -3,6 +3,7 @@ package calib
 import (
 	"math"
 	"strconv"
+	"sync"
 )
 
 // cautions are carried by every Report and every Prediction.
@@ -27,10 +28,12 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	ratio := raw[0] / planRaw[0] // raw and planRaw may be the same slice
 	w := raw
 	wscale := normalise(w) * ratio
-	f, err := solveLSQ(opt.Model, d.x, d.y, w)
+	var des design
+	f, err := fitDesign(&des, opt.Model, d, w)
 	if err != nil {
 		return nil, err
 	}
+	defer des.release()
 	n, p := len(d.x), f.p
 	r := &Report{
 		Model:              opt.Model,
@@ -102,12 +105,47 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		}
 	}
 	r.Limits = computeLimits(r, f)
-	r.Checks = computeChecks(r, d, f, w, opt.Policy)
+	r.Checks = computeChecks(r, d, &des, f, w, opt.Policy)
 	r.Verdict = verdict(r.Checks)
 	if !r.finite() {
 		return nil, inputErr("points", "values are outside the numerically usable range")
 	}
 	return r, nil
+}
+
+// fitDesign factorises once for the model and, where the data allow, the
+// line and the quadratic that Mandel's test and the intercept test compare
+// (columns [1, x, x²], or [x, 1, x²] for the origin model), and fits the
+// model from it. If the extra columns are not usable (x² overflows), the
+// model's own columns are factorised and those checks are not computed.
+// The caller releases des when it no longer needs it (on success only).
+func fitDesign(des *design, m Model, d *dataset, w []float64) (lsq, error) {
+	n, k := len(d.x), len(d.levels)
+	var ext []int
+	switch {
+	case m == Quadratic:
+		ext = powers(m)
+	case n >= 4 && k >= 3 && m == Linear:
+		ext = []int{0, 1, 2}
+	case n >= 4 && k >= 3:
+		ext = []int{1, 0, 2}
+	case n >= 3 && m == LinearOrigin:
+		ext = []int{1, 0}
+	default:
+		ext = powers(m)
+	}
+	err := des.init(ext, d.x, d.y, w)
+	if err != nil && len(ext) > nParams(m) {
+		err = des.init(powers(m), d.x, d.y, w)
+	}
+	if err != nil {
+		return lsq{}, err
+	}
+	f, err := des.fit(m)
+	if err != nil {
+		des.release()
+	}
+	return f, err
 }
 
 // backCalc reads a point's concentration back from the curve and sets its
@@ -232,46 +270,48 @@ func FailedReport(points []Point, opt Options, cause error) *Report {
 
 // finite reports whether every float in the report is finite.
 func (r *Report) finite() bool {
-	ok := func(v ...float64) bool {
-		for _, x := range v {
-			if math.IsNaN(x) || math.IsInf(x, 0) {
-				return false
-			}
-		}
-		return true
-	}
-	if !ok(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
+	if !finite(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
 		r.WeightScale, r.WeightFloor, r.Variance.C0, r.Variance.C1, r.Variance.Floor,
 		r.Limits.LOD, r.Limits.LOQ, r.Limits.CriticalValue, r.Limits.CriticalConc, r.Limits.DetectionLimit,
 		r.Range.Low, r.Range.High) {
 		return false
 	}
-	if !ok(r.Coefficients...) || !ok(r.StandardErrors...) {
+	if !finite(r.Coefficients...) || !finite(r.StandardErrors...) {
 		return false
 	}
 	for _, row := range r.Covariance {
-		if !ok(row...) {
+		if !finite(row...) {
 			return false
 		}
 	}
 	for _, c := range r.WeightCandidates {
-		if !ok(c.SumAbsRE) {
+		if !finite(c.SumAbsRE) {
 			return false
 		}
 	}
 	for i := range r.Points {
 		p := &r.Points[i]
-		if !ok(p.X, p.Y, p.Weight, p.Fitted, p.Residual, p.WeightedResidual, p.Leverage,
+		if !finite(p.X, p.Y, p.Weight, p.Fitted, p.Residual, p.WeightedResidual, p.Leverage,
 			p.Studentized, p.CooksDistance, p.BackCalculated, p.RelativeErrorPct) {
 			return false
 		}
 	}
 	for _, c := range r.Checks {
-		if !ok(c.Statistic, c.Limit) {
+		if !finite(c.Statistic, c.Limit) {
 			return false
 		}
 	}
 	return true
+}
+
+// finite reports whether every v is neither NaN nor ±Inf (v − v is NaN for
+// both, 0 for every finite v).
+func finite(v ...float64) bool {
+	var s float64
+	for _, x := range v {
+		s += x - x
+	}
+	return s == 0
 }
 
 // fmtG formats v with six significant digits for Detail texts.
@@ -279,12 +319,45 @@ func fmtG(v float64) string {
 	return strconv.FormatFloat(v, 'g', 6, 64)
 }
 
-// fmtG10 formats v with ten significant digits.
-func fmtG10(v float64) string {
-	return strconv.FormatFloat(v, 'g', 10, 64)
-}
-
 // itoa formats an integer for Detail texts.
 func itoa(i int) string {
 	return strconv.Itoa(i)
 }
+
+// text builds Detail texts with one allocation for the finished string
+// rather than one per number and per concatenation.
+type text struct{ b []byte }
+
+// textPool recycles text buffers across checks and fits.
+var textPool = sync.Pool{New: func() any { return &text{b: make([]byte, 0, 512)} }}
+
+// newText returns an empty text from the pool; free returns it.
+func newText() *text {
+	t := textPool.Get().(*text)
+	t.b = t.b[:0]
+	return t
+}
+
+func (t *text) free() { textPool.Put(t) }
+
+func (t *text) s(v string) *text { t.b = append(t.b, v...); return t }
+
+// g appends v with six significant digits.
+func (t *text) g(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 6, 64); return t }
+
+// g10 appends v with ten significant digits.
+func (t *text) g10(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 10, 64); return t }
+
+func (t *text) i(v int) *text { t.b = strconv.AppendInt(t.b, int64(v), 10); return t }
+
+// point names a reading for QA staff: its level label, index and x.
+func (t *text) point(p *PointResult, i int) *text {
+	if p.Level != "" {
+		return t.s(p.Level).s(" (reading ").i(i).s(", x = ").g(p.X).s(")")
+	}
+	return t.s("reading ").i(i).s(" (x = ").g(p.X).s(")")
+}
+
+func (t *text) len() int { return len(t.b) }
+
+func (t *text) str() string { return string(t.b) }
