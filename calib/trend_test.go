@@ -94,7 +94,9 @@ func TestWestgard(t *testing.T) {
 	// against the rule definitions of Westgard et al., Clin. Chem. 27 (1981)
 	// 493 (restated from memory in trend.go). The 1-2s warnings that the
 	// 2-2s and R-4s values raise as well are part of the expectation.
-	v := func(rule string, pts ...int) Violation { return Violation{Rule: rule, Points: pts, Reject: rule != Rule12s} }
+	v := func(rule string, pts ...int) Violation {
+		return Violation{Rule: rule, Points: pts, Reject: rule != Rule12s}
+	}
 	tests := []struct {
 		name string
 		z    []float64
