@@ -68,6 +68,8 @@ func TestRoutes(t *testing.T) {
 		"GET /v1/methods",
 		"GET /v1/methods/{name}",
 		"GET /v1/runs/{id}",
+		"GET /v1/trends",
+		"GET /v1/trends/plot.svg",
 		"POST /v1/curves/{id}/predictions",
 		"POST /v1/curves/{id}/review",
 		"POST /v1/methods",

@@ -26,6 +26,7 @@ import (
 // Defines values for CheckName.
 const (
 	CheckBackCalculation       CheckName = "back_calculation"
+	CheckDrift                 CheckName = "drift"
 	CheckHomoscedasticity      CheckName = "homoscedasticity"
 	CheckIntercept             CheckName = "intercept"
 	CheckLackOfFit             CheckName = "lack_of_fit"
@@ -41,6 +42,8 @@ const (
 func (e CheckName) Valid() bool {
 	switch e {
 	case CheckBackCalculation:
+		return true
+	case CheckDrift:
 		return true
 	case CheckHomoscedasticity:
 		return true
@@ -59,6 +62,36 @@ func (e CheckName) Valid() bool {
 	case CheckRelativeStandardError:
 		return true
 	case CheckResidualRuns:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for ControlRule.
+const (
+	Rule10X ControlRule = "10x"
+	Rule12S ControlRule = "1-2s"
+	Rule13S ControlRule = "1-3s"
+	Rule22S ControlRule = "2-2s"
+	Rule41S ControlRule = "4-1s"
+	RuleR4S ControlRule = "R-4s"
+)
+
+// Valid indicates whether the value is a known member of the ControlRule enum.
+func (e ControlRule) Valid() bool {
+	switch e {
+	case Rule10X:
+		return true
+	case Rule12S:
+		return true
+	case Rule13S:
+		return true
+	case Rule22S:
+		return true
+	case Rule41S:
+		return true
+	case RuleR4S:
 		return true
 	default:
 		return false
@@ -179,6 +212,33 @@ func (e Scope) Valid() bool {
 	case ScopeResultsRead:
 		return true
 	case ScopeRunsWrite:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for TrendParameter.
+const (
+	TrendParameterIntercept  TrendParameter = "intercept"
+	TrendParameterLod        TrendParameter = "lod"
+	TrendParameterRSquared   TrendParameter = "r_squared"
+	TrendParameterResidualSd TrendParameter = "residual_sd"
+	TrendParameterSlope      TrendParameter = "slope"
+)
+
+// Valid indicates whether the value is a known member of the TrendParameter enum.
+func (e TrendParameter) Valid() bool {
+	switch e {
+	case TrendParameterIntercept:
+		return true
+	case TrendParameterLod:
+		return true
+	case TrendParameterRSquared:
+		return true
+	case TrendParameterResidualSd:
+		return true
+	case TrendParameterSlope:
 		return true
 	default:
 		return false
@@ -334,7 +394,13 @@ type Check struct {
 
 	// Name A check of the acceptance policy: `min_levels`, `mandel`,
 	// `lack_of_fit`, `homoscedasticity`, `back_calculation`, `r_squared`,
-	// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`.
+	// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`,
+	// `drift`. `drift` is computed at ingest: the new curve's slope against
+	// the mean and SD of the same instrument and analyte's 20 most recent
+	// approved curves, with the Westgard reject rules (see
+	// `GET /v1/trends`). It is advisory unless the method lists it as
+	// mandatory, and it is left out when fewer than 10 approved curves
+	// exist, unless it is mandatory (then it is reported as not computed).
 	Name   CheckName `json:"name"`
 	Passed bool      `json:"passed"`
 
@@ -347,7 +413,13 @@ type Check struct {
 
 // CheckName A check of the acceptance policy: `min_levels`, `mandel`,
 // `lack_of_fit`, `homoscedasticity`, `back_calculation`, `r_squared`,
-// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`.
+// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`,
+// `drift`. `drift` is computed at ingest: the new curve's slope against
+// the mean and SD of the same instrument and analyte's 20 most recent
+// approved curves, with the Westgard reject rules (see
+// `GET /v1/trends`). It is advisory unless the method lists it as
+// mandatory, and it is left out when fewer than 10 approved curves
+// exist, unless it is mandatory (then it is reported as not computed).
 type CheckName string
 
 // Concentration A nominal concentration, in the analyte's unit.
@@ -355,6 +427,22 @@ type Concentration = float64
 
 // Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
 type Confidence = float64
+
+// ControlLimits Shewhart control limits (ISO 7870-2); null without a baseline.
+type ControlLimits struct {
+	ActionHigh  float64 `json:"action_high"`
+	ActionLow   float64 `json:"action_low"`
+	Centre      float64 `json:"centre"`
+	WarningHigh float64 `json:"warning_high"`
+	WarningLow  float64 `json:"warning_low"`
+}
+
+// ControlRule A Westgard rule (Westgard et al., Clin. Chem. 27 (1981) 493): `1-2s`
+// one value beyond ±2 SD (warning); `1-3s` one beyond ±3 SD; `2-2s` two
+// consecutive beyond the same 2 SD limit; `R-4s` two consecutive, one
+// above +2 SD and the other below −2 SD; `4-1s` four consecutive beyond
+// the same 1 SD limit; `10x` ten consecutive on the same side of the mean.
+type ControlRule string
 
 // Cursor Opaque keyset cursor (base64url without padding).
 type Cursor = string
@@ -776,6 +864,23 @@ type ReviewRequest struct {
 	Reason *Text `json:"reason,omitempty"`
 }
 
+// RuleViolation defines model for RuleViolation.
+type RuleViolation struct {
+	// CurveIds The curves involved, in time order.
+	CurveIds []UUID `json:"curve_ids"`
+
+	// Reject False for the 1-2s warning, true for the reject rules.
+	Reject bool `json:"reject"`
+
+	// Rule A Westgard rule (Westgard et al., Clin. Chem. 27 (1981) 493): `1-2s`
+	// one value beyond ±2 SD (warning); `1-3s` one beyond ±3 SD; `2-2s` two
+	// consecutive beyond the same 2 SD limit; `R-4s` two consecutive, one
+	// above +2 SD and the other below −2 SD; `4-1s` four consecutive beyond
+	// the same 1 SD limit; `10x` ten consecutive on the same side of the mean.
+	Rule   ControlRule `json:"rule"`
+	Source string      `json:"source"`
+}
+
 // Run A run as stored.
 type Run struct {
 	AcquiredAt time.Time `json:"acquired_at"`
@@ -929,6 +1034,71 @@ type TokenRequest struct {
 	Scopes []Scope    `json:"scopes"`
 }
 
+// Trend defines model for Trend.
+type Trend struct {
+	Analyte  string        `json:"analyte"`
+	Baseline TrendBaseline `json:"baseline"`
+
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions   Cautions `json:"cautions"`
+	Instrument string   `json:"instrument"`
+
+	// Limits Shewhart control limits (ISO 7870-2); null without a baseline.
+	Limits *ControlLimits `json:"limits"`
+
+	// Notes What to keep in mind reading this trend (a provisional baseline, curves without a value).
+	Notes []string `json:"notes"`
+
+	// Parameter The curve parameter a trend follows.
+	Parameter TrendParameter `json:"parameter"`
+	Points    []TrendPoint   `json:"points"`
+
+	// Truncated True when the window held more than 1,000 curves and only the oldest 1,000 were read.
+	Truncated  bool            `json:"truncated"`
+	Violations []RuleViolation `json:"violations"`
+}
+
+// TrendBaseline defines model for TrendBaseline.
+type TrendBaseline struct {
+	CurveIds []UUID   `json:"curve_ids"`
+	Mean     *float64 `json:"mean"`
+	N        int      `json:"n"`
+
+	// Sd Sample standard deviation (n − 1); null when there is no baseline.
+	Sd *float64 `json:"sd"`
+
+	// Selection How the baseline curves were chosen.
+	Selection string `json:"selection"`
+}
+
+// TrendParameter The curve parameter a trend follows.
+type TrendParameter string
+
+// TrendPoint defines model for TrendPoint.
+type TrendPoint struct {
+	AcquiredAt time.Time `json:"acquired_at"`
+	CurveID    UUID      `json:"curve_id"`
+
+	// Evaluated Whether the rules were evaluated on this value (false for rejected curves and missing values).
+	Evaluated  bool `json:"evaluated"`
+	InBaseline bool `json:"in_baseline"`
+
+	// Status Review state. A new curve is `pending_review`; a review is final.
+	Status CurveStatus `json:"status"`
+
+	// Value The parameter's value; null when the curve has none (a failed fit, no intercept).
+	Value *float64 `json:"value"`
+
+	// Verdict `fail` when any mandatory check failed or the curve could not be fitted.
+	Verdict Verdict `json:"verdict"`
+
+	// Violations The rules whose violations involve this value.
+	Violations []ControlRule `json:"violations"`
+}
+
 // UUID defines model for UUID.
 type UUID = openapi_types.UUID
 
@@ -1056,6 +1226,38 @@ type CreateRunParams struct {
 	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
 }
 
+// GetTrendParams defines parameters for GetTrend.
+type GetTrendParams struct {
+	Instrument Identifier      `form:"instrument" json:"instrument"`
+	Analyte    Identifier      `form:"analyte" json:"analyte"`
+	Parameter  *TrendParameter `form:"parameter,omitempty" json:"parameter,omitempty"`
+
+	// From Earliest `acquired_at`, inclusive.
+	From *time.Time `form:"from,omitempty" json:"from,omitempty"`
+
+	// To Latest `acquired_at`, exclusive.
+	To *time.Time `form:"to,omitempty" json:"to,omitempty"`
+
+	// Baseline How many approved curves, from the start of the window, make the baseline.
+	Baseline *int `form:"baseline,omitempty" json:"baseline,omitempty"`
+}
+
+// GetTrendPlotSVGParams defines parameters for GetTrendPlotSVG.
+type GetTrendPlotSVGParams struct {
+	Instrument Identifier      `form:"instrument" json:"instrument"`
+	Analyte    Identifier      `form:"analyte" json:"analyte"`
+	Parameter  *TrendParameter `form:"parameter,omitempty" json:"parameter,omitempty"`
+
+	// From Earliest `acquired_at`, inclusive.
+	From *time.Time `form:"from,omitempty" json:"from,omitempty"`
+
+	// To Latest `acquired_at`, exclusive.
+	To *time.Time `form:"to,omitempty" json:"to,omitempty"`
+
+	// Baseline How many approved curves, from the start of the window, make the baseline.
+	Baseline *int `form:"baseline,omitempty" json:"baseline,omitempty"`
+}
+
 // CreatePredictionsJSONRequestBody defines body for CreatePredictions for application/json ContentType.
 type CreatePredictionsJSONRequestBody = PredictionRequest
 
@@ -1127,6 +1329,12 @@ type ServerInterface interface {
 	// DeleteToken Revoke a token
 	// (DELETE /v1/tokens/{id})
 	DeleteToken(ctx echo.Context, id UUID) error
+	// GetTrend Drift of one curve parameter over time, with control limits and Westgard rules
+	// (GET /v1/trends)
+	GetTrend(ctx echo.Context, params GetTrendParams) error
+	// GetTrendPlotSVG Control chart of a trend, SVG
+	// (GET /v1/trends/plot.svg)
+	GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSVGParams) error
 }
 
 // ServerInterfaceWrapper converts echo contexts to parameters.
@@ -1480,6 +1688,112 @@ func (w *ServerInterfaceWrapper) DeleteToken(ctx echo.Context) error {
 	return err
 }
 
+// GetTrend converts echo context to params.
+func (w *ServerInterfaceWrapper) GetTrend(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params GetTrendParams
+	// ------------- Required query parameter "instrument" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "instrument", ctx.QueryParams(), &params.Instrument, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// ------------- Required query parameter "analyte" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "analyte", ctx.QueryParams(), &params.Analyte, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter analyte: %s", err))
+	}
+
+	// ------------- Optional query parameter "parameter" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "parameter", ctx.QueryParams(), &params.Parameter, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter parameter: %s", err))
+	}
+
+	// ------------- Optional query parameter "from" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "from", ctx.QueryParams(), &params.From, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter from: %s", err))
+	}
+
+	// ------------- Optional query parameter "to" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "to", ctx.QueryParams(), &params.To, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter to: %s", err))
+	}
+
+	// ------------- Optional query parameter "baseline" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "baseline", ctx.QueryParams(), &params.Baseline, runtime.BindQueryParameterOptions{Type: "integer", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter baseline: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetTrend(ctx, params)
+	return err
+}
+
+// GetTrendPlotSVG converts echo context to params.
+func (w *ServerInterfaceWrapper) GetTrendPlotSVG(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params GetTrendPlotSVGParams
+	// ------------- Required query parameter "instrument" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "instrument", ctx.QueryParams(), &params.Instrument, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// ------------- Required query parameter "analyte" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "analyte", ctx.QueryParams(), &params.Analyte, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter analyte: %s", err))
+	}
+
+	// ------------- Optional query parameter "parameter" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "parameter", ctx.QueryParams(), &params.Parameter, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter parameter: %s", err))
+	}
+
+	// ------------- Optional query parameter "from" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "from", ctx.QueryParams(), &params.From, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter from: %s", err))
+	}
+
+	// ------------- Optional query parameter "to" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "to", ctx.QueryParams(), &params.To, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter to: %s", err))
+	}
+
+	// ------------- Optional query parameter "baseline" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "baseline", ctx.QueryParams(), &params.Baseline, runtime.BindQueryParameterOptions{Type: "integer", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter baseline: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetTrendPlotSVG(ctx, params)
+	return err
+}
+
 // This is a simple interface which specifies echo.Route addition functions which
 // are present on both echo.Echo and echo.Group, since we want to allow using
 // either of them for path registration
@@ -1540,6 +1854,8 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/curves/:id/audit", wrapper.GetCurveAudit, options.OperationMiddlewares["getCurveAudit"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id/plot.svg", wrapper.GetCurvePlotSVG, options.OperationMiddlewares["getCurvePlotSVG"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id/plot.png", wrapper.GetCurvePlotPNG, options.OperationMiddlewares["getCurvePlotPNG"]...)
+	router.GET(options.BaseURL+"/v1/trends", wrapper.GetTrend, options.OperationMiddlewares["getTrend"]...)
+	router.GET(options.BaseURL+"/v1/trends/plot.svg", wrapper.GetTrendPlotSVG, options.OperationMiddlewares["getTrendPlotSVG"]...)
 	router.GET(options.BaseURL+"/v1/methods", wrapper.ListMethods, options.OperationMiddlewares["listMethods"]...)
 	router.POST(options.BaseURL+"/v1/methods", wrapper.CreateMethod, options.OperationMiddlewares["createMethod"]...)
 	router.GET(options.BaseURL+"/v1/methods/:name", wrapper.GetMethod, options.OperationMiddlewares["getMethod"]...)
@@ -3943,6 +4259,254 @@ func (response DeleteToken503ApplicationProblemPlusJSONResponse) VisitDeleteToke
 	return err
 }
 
+type GetTrendRequestObject struct {
+	Params GetTrendParams
+}
+
+type GetTrendResponseObject interface {
+	VisitGetTrendResponse(w http.ResponseWriter) error
+}
+
+type GetTrend200JSONResponse Trend
+
+func (response GetTrend200JSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend400ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend401ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend403ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend429ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend500ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend503ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVGRequestObject struct {
+	Params GetTrendPlotSVGParams
+}
+
+type GetTrendPlotSVGResponseObject interface {
+	VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error
+}
+
+type GetTrendPlotSVG200ImageSvgXMLResponse struct {
+	Body          io.Reader
+	ContentLength int64
+}
+
+func (response GetTrendPlotSVG200ImageSvgXMLResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	w.Header().Set("Content-Type", "image/svg+xml")
+	if response.ContentLength != 0 {
+		w.Header().Set("Content-Length", fmt.Sprint(response.ContentLength))
+	}
+	w.WriteHeader(200)
+
+	if closer, ok := response.Body.(io.ReadCloser); ok {
+		defer closer.Close()
+	}
+	_, err := io.Copy(w, response.Body)
+	return err
+}
+
+type GetTrendPlotSVG400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG400ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG401ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG403ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG429ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG500ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG503ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 // StrictServerInterface represents all server handlers.
 type StrictServerInterface interface {
 	// GetHealthz Liveness
@@ -3999,6 +4563,12 @@ type StrictServerInterface interface {
 	// DeleteToken Revoke a token
 	// (DELETE /v1/tokens/{id})
 	DeleteToken(ctx context.Context, request DeleteTokenRequestObject) (DeleteTokenResponseObject, error)
+	// GetTrend Drift of one curve parameter over time, with control limits and Westgard rules
+	// (GET /v1/trends)
+	GetTrend(ctx context.Context, request GetTrendRequestObject) (GetTrendResponseObject, error)
+	// GetTrendPlotSVG Control chart of a trend, SVG
+	// (GET /v1/trends/plot.svg)
+	GetTrendPlotSVG(ctx context.Context, request GetTrendPlotSVGRequestObject) (GetTrendPlotSVGResponseObject, error)
 }
 
 type StrictHandlerFunc func(ctx echo.Context, request any) (any, error)
@@ -4570,229 +5140,308 @@ func (sh *strictHandler) DeleteToken(ctx echo.Context, id UUID) error {
 	return nil
 }
 
+// GetTrend operation middleware
+func (sh *strictHandler) GetTrend(ctx echo.Context, params GetTrendParams) error {
+	var request GetTrendRequestObject
+
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetTrend(ctx.Request().Context(), request.(GetTrendRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetTrend")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetTrendResponseObject); ok {
+		return validResponse.VisitGetTrendResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetTrendPlotSVG operation middleware
+func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSVGParams) error {
+	var request GetTrendPlotSVGRequestObject
+
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetTrendPlotSVG(ctx.Request().Context(), request.(GetTrendPlotSVGRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetTrendPlotSVG")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetTrendPlotSVGResponseObject); ok {
+		return validResponse.VisitGetTrendPlotSVGResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // Base64 encoded, compressed with deflate, json marshaled OpenAPI spec.
 // Stored as a slice of fixed-width chunks rather than one concatenated
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7H3bciNHltivpDHrENlTBEE2W6MmYyKWQ6lX3Onbkt3SrIUeVqIqAeSwkAllZpHEqNthh1+8r37xB6z9",
-	"AxvhmHD4TX5ff4PnSxznnMyqLKAAAmyyR+OQItTdAKrycjLP/fZDJ9OTqVZCOds5/KEzFjwXBv95JpyZ",
-	"HQ+dMPApFzYzcuqkVp3DzrnItMotc5pdc+nYQAy1EczAK1KNup2kY8T3pTQi7xw6U4qkY7OxmHAYaiKV",
-	"nJSTzmEv6bjZVHQOO1I5MRKm8+HDh6Qz5YZPhPPLOCnNlTj9cnENb8aCZfDjZ5bJHKaU8PWUu3En6Sg+",
-	"wYHzlUv5GyOGncPOL3ZrKOzSr3b37dvTLzuwntNcTKbaCZXNfitmiws5ZlkhhXI72VhbodilmLEtzuB9",
-	"Ji3jbKR1zrKxlpnYZm7MHZvwSwG/AMCkyPsKliisY5YPxRGzQjA3FkxPheEwy2eWRXN2+yrsls6r3m+0",
-	"1h1YbAPu/Oa5UCM37hzu7X+RwDlUnwHqzgkDY/7+u+Odf8d3/tjbedq9ONx598Nesrf/xYe/6VTHZZ2R",
-	"aoTAOSvVssMxpXrYo/kA79upVlbgVfkNz88IjvAp08oJhf/k02khM4Tk7tToQSEmv/yDhYX+sOaMr+kt",
-	"mrS51Re8GGozETmzM+X4TcKujVYjBrBi2jDOrnhRCqZLZ2VOB0vDHrJJeLev/v781cuEcUawZddjYQTj",
-	"TJWTgTBsIAqtRjZhXLFSXSp9rdhQiiKHV/zRMW36ynA1EuxK6oI7gb9+XwozYxVS0QXMtbBMaccANDO4",
-	"UB+SzolWw0JmnxR6eFGE1aXJAJGt406woTYDCeQFfyTM2OKE7cyIKymuRc54YQTPZwnjfUU/XUs31qVj",
-	"nA2lSxC/6GX4gQDPJ4LJGkkQWa2TRcGk6sP2R2O37eHxDJeRC/WpAeL0pVCs4NmlZeIKjs9meipYIa0T",
-	"OZOKpTc7AXV28DebdmHJpwpuAi++MkabT7nsMDETMHOXwTYGOp8xy2eWaVXMWB/JfP1Qv8O4yhuHDMTi",
-	"Q9J5qd0zXar8U8MdKFNeXccaScSNtA5X9prPCs3zN1o/52YkPvUCEaLiJhPCY4cV5kqYzyzLtBrKUWlE",
-	"zgo5kbTac2GuZCbeKn7FZcEHxSdfcM4dH3ArWMYVQHIAZ82zsciZ0tcJ0MewDZkJYJd2XDoHFDDX1wpY",
-	"x7xIslPJJG3r8k/vRtILLu2N1i+4mnn+YP8iGP2ZrS66ATInLdNXwjDpbDi0+9ruW8VLN9ZG/lF8Uix6",
-	"Ia2VapTUnC2p+JU2QLv1pcjZQHADrAigMrfpb7/9due4dGOhHKxSLMoW6W/w7ZSoOlcsRXKSMu6ckYPS",
-	"CbZ19uyEff6rJ73t1aLovDxDoJsanQlrAV++Uk662aeE4LeiKHa8QCHVtHTEsAdG8EsUGctCMD2M0ebI",
-	"Q8CmSMEsAwzrKz0cCpUDKqGkUBPbshCew71VtpxOtXEifyFyyd8gPD4190eU+MyyE5p1B1YByAEEQ6s5",
-	"UZjxLBNTZ7sofvo5YAnH+D1XmTgFsOHa81zCO7x4bWAAJ0FQHPLCivmV1G8zNzbCjnWR2yOEJK6hEEMH",
-	"IhxzKLrDkoQaSSVQNB/ysnBsy45JLisK4tJa4YMT4cY6x6s4jdbxQ2fAs8uLjBfZRaGvL5wuhIEVXExJ",
-	"BhM3WVFaeSVeBI2J7i/cDu46h51cl0DTExDt6YG9Xi9pU7BIjIQjr+ecSHUx5dZeDA3PCAw/rBx77ZE/",
-	"zU7GeqJtJnJuncykm13wYjq+9TYe40MfEhJG4NA3fA/Esgs9vBjKTd+ccJVzp02LDnkyFiDsXYMGyYZc",
-	"FqWhv+mqXQmTy8wdESq4sTCWcdAP8itptZmhiuXExN62FpznJShguJ6bU3ppr4YvN4aD3lgq+X0p/O9w",
-	"Wn4Doth41zcXxj7sVYCrXIgrUViv6NKjT+L39hetDfSiubDfl9wQo/yI+69LV0hhLjKtL+1F/mCbDfNY",
-	"V+bAJT2Lf5C5TKnsRuf9oRpED/4gMgeD1LT1tS5kNtuQNH+FGlBFlYGwDrXJRBIIr61J7sY0dhE6H08x",
-	"N6GMa7y9nM6t8XILlVvjrVYat8Z7DQq3OUFqkKAWerPWChrUZp03GrTjTiRiHVKwwVtziL3Gm000vfWF",
-	"D7FM/F0MgTmYt92EpRdy+T1PVmLhagybP4DmES9e8AYw2mG6eD7xzX3XRsECaOctv1aOlBzKDAVHhCFQ",
-	"oBUkt9d9EpPcbq/X22s50GPFixkpPyspZZPWkWV1NcKdIhiGkuYplXS3Wlvhmfk7g1P591shVubSfXUV",
-	"lIj191AT1jm9CLSga25ZrpVImOiOuiw1pepmRnAn8jRhKVoBu0PpGp/5dGr0VfyNEbBMkafdRZt2AivQ",
-	"LT4PIFJB8SIDHSpmHAZqH2eOAnEndpyciLZnc+G4LNrt6FNunMzKghubMKmyokSljgdLqEG7ArdadVtN",
-	"9PGxcUAZ2mDSqTDMz770HJ/r0YanKK6CR2ktLhDdlgU2MLcDP3LbWk94CcuzSy4PGRotaGrSojZMOuah",
-	"VykRh/mIS2VdbE/zUkZfZUY6YSRnQ6MnbFoOCmnHImejUubwMonnBR9og6TkMwsjG5FLh6pr0ldGjMoC",
-	"fsT5STFk569eo1rJpkZkIhc4FB0uG8zQhM8LQNmcTYWxWvVV5XArBLfCO4QCpBdu10SqIOgvMlnkwBse",
-	"Lxxh6Yg9NSH9DB5n12NBqm8Gg7NMl0XOvP0vvIvQUiwFci/yFA4D50LIpHQlUzIfX49n0dUeaF0Irppo",
-	"s7BnNKi1I1QkSuJVgBUBb0GD0hFTZVHM72DM4aoodOhcczJNhI20U3wYhSyuJIavlpXmr6sAHS8yHniP",
-	"oRvDcnFFuciCN6nSDlEzvJZW+I3F6uEi8NbhFg3xjE4qgnY0GJnMW7diRGV2Iqxztckk0xOB6NRKQS3g",
-	"DQgZS84RPabhGTiaieAWcRZdbvFRfvSBtfO/eoXhxlVgSmosiQ+7AtVKslvDvc3djBfAs6KIdk1Ruzpk",
-	"aS3QAc8jiS5N+iqNpDn4ZV6Qg+8qWQzolNQKvqukLxzECPjlSlxYB7sy+QXZXxOWVsIYviWszEteXIBA",
-	"Bl94qcumRK+EAhGoVfxsCp4tImcsNPqFguQXSYlLVhlLjPhUtMZaMIz5i7+OSedmB1a8c8UNWllh6XhM",
-	"L6R6HpZPX4Q94KfnPLt8NXyG28Avvl7cC37/G55dnjT2g1+fnVd7os9+Y+d+X1/5beGPp9He/NO0wTPa",
-	"H373qtokOX0zoRwZV9tum9ITqXgBHLF+EAQRun4kqH5mGYiCtwi/e73ov1ssDyfAgJEXtiD/td6xMhc5",
-	"sWl8iqRvwAo83yte2IT1uk+Y06zXffr06a2C+dOnTxui+ZO2VZXGtgmHr6b8+1KwSzGzwrEMn2JbA27F",
-	"5welKSrP9BSYrBqhLTiKx3iyt79WPMbFzrtf/k0bpcQomU1N3owkZfKrd9m3geUZwWGRtsm3/cMg8hYF",
-	"0IFMi+FQZhIYBqB3E9FsSow801fcSKBPKZosxWTqZgnM01cEV0uCtBIwOkyDzwE5TljqeRuKB+kQRILE",
-	"j4sWUxQQ+goEBKQp87oEEewL7lo5k99uqZCnh6ebF2WV1M5rLW3htywSRldy2PAcvIN72sx20mY3iU9m",
-	"ceOnik10Lood8X1JLhVtcmEOWSGV4IZ9N+glbLD3LvFfXGgjR1Kx7/C770ueAw3IwnMJG+y/axig1zPT",
-	"eIn0cdvyl6P+SQvCwyEO4FLA/3pYCRcVIWhH/YVF1Ve1bd7wG5twZ+RNmDiGdcLsj/+y9bv/+z/+w7e/",
-	"2/7zf/xfP/7PhBl9bYFYRs8RvBsguzfYrQYsqcqr0cGH0nBbYbzKmXV6I8zIh4szBFbEcjEyQliA4NAI",
-	"ketJwhT783/+L2waiYGRCY48bRdXwthWJoWhgLyQA+8ipOeJrAQhDPeGYUFkOsDnd/e6vW6v3Qwg8/XC",
-	"0ECgsM6UE2/rWNREKuNic9VfguCoMkcX2QaOOiQ2uipK0suatxKI5/QUXAvUItqVQ/zpAvTN5dD1Wkh4",
-	"qP2iAJNrLH2v1eUCtOe2lb/Ah0BJabtHnj3VAGNb6P0AiUArEdSzUjlBbtfVwJxq2UooyfEQ2Fpgi0nY",
-	"rjYszJqwkdHlVOSgrxNdkooYipU1iV3fTQegfQ3LaiPvDWv0fPSAHI2Rp8fkBkiiEwbkOFzMVkminMjZ",
-	"UJsmmd++ozqLgYe37esMH/oQyd02X0EoKtDn4krS0u3WbPdmOwmu9X/952v2a6bYNe6b2YwX4q4bQIPL",
-	"rTugp8jmfrE+jZgTjlpCqsNe6YEl7AVtkAtX6WOZBmix5XqX8pwejUzHzW28PXn7gmU6r0yltYLQUCAq",
-	"dWGBHgU+e7EWofjGP10RDC8w3vqef+xD0qG7c5FxlUtgam32Q+nGLOWl02niIzKrxz+zzGbaiCMSbWsj",
-	"zNrYTkh7EgZsQ/mwRq2uhGrX1L7W1x4NKDYAcSH37E7BDSmkBT6omS0n8JcKcftphI7tzJAGhg8gVhfF",
-	"q2Hn8Lt1doXvv2uL+8HnBCthTVsY16AE8yH0aLIheCOD8TFCSM3j1VxUP9z7uiLbG7eXRClx8j8Koy/G",
-	"XOWFB8fiMcAjzetuKfrNB6uza2FAWZw6b0o2Oi8zqUZMqqFU0olwkuFSeRuWEowbTVdrtaGfouuJRFXs",
-	"f5HZN4SXWqHx2B2YdXz+7dBvw6K2WzsPvjldZZFONqTyJt9AKbNp9IEJKlNSpEZUPL7SsSoRKnCumnJU",
-	"9DBpKJAN8TnS7xbE01Z7HtDO59Ju6g27kxYJc22gRSJZLycTbmZtpEeJG3eRLbF7kD0k0Hp4lE35KFhe",
-	"PZMuuKWvu8v58JJr7PfSXEUE/KWwJuFpM4PIKyUWpD0KMkWTteQjpa2TmT1iPPqIbqTK0CzdXNw421Ka",
-	"FA9tmNLMaO1Q7Brw7HInMmD6B8ja1sNHghGThIJVEYQl5nu06ssR04VN4bxEdyop/o4iUzZvO1xLyUaX",
-	"u7QuKNp3mDjI3e2+CJLP7zg0ko+lepzho7uuuTJI41mGAJXmae31ej/+aWvuUFEzboB6e7fx8c4CL9HS",
-	"O++HuNma5x4FYFzEM7enkRSgd9ELllIy8IU77pT40DJtaV6XQMHpiPUIn8NVuw+nEd2tebyJQFkttbrE",
-	"0TEtgWF0MRewK1kgEK33MEKopQT1vNIR5pU19FNj4laXHTMlrr1lQFqWTikC/YKUq/SoilpAdy9Qum7k",
-	"CWo+DfzXh27gsilmY13PTL3m1zTqWRg0+um4Hj/69qyaqtq8Z4+bhrI0zM/3YFNu2O/WG2/IZSHyi9q0",
-	"vBjVUiubFIVMGYKSLP9Tbi3bqvyXmNHo3crb3ZVRB/OCxL0Z1DYzZt2nNeqWOMDbaeamNoO7q+WLevUd",
-	"FWOv5aypUn06NSSW+1tE9+a9XyHKt1G8L2VRtmvZ4Rc2xCgqzJ+VImd86IRhUnklgG0ZQXk17NeeHFIW",
-	"8P/+ryz3Q2wfsT3iMXxghUJryN2CuNdwp34teOHGGxKw+gIGCq0vkRTzfLYmHaZ5X/22E5ZwRi/PXxQ/",
-	"VdthRBGLbe5pH5bHFavvUBLMTonX4ZPgLTLM8smUjISRA/bzg7X8r+/mU+N7yeePP7R6ZE+982lDHSTy",
-	"bwX3VW0KjGU+ctemA12qPA6fSlha6GvvfB3L0Tit3Kkt6gO93S5Gw8sfK0SvE2uur+80y7xspYG345qT",
-	"StAK+2u7Vs8rF8oGx/OlcCKjNDSVs+9LjjeT0uMohxNjNFtsnRbzdqeOpZmRTma8uECKkLItXlmGtleF",
-	"LM1ZBsIo2eoAjtPzV2xv74uDxzv7LLwTKhIErd3NB3fcXGR3VQkbm7vLcgIsEja78yqWhdN+ra9hjhkZ",
-	"4AJwUfG+Hs8A4t0l0bl06hdLogrjXXkyzOglWCbtD6B611jBQreo9qcnX7N/2GfV4uj+Jexx9/GPf/o/",
-	"/2n3/M6Tfb90srYbn7C93kdMuIDHwNBhDQuXKVl26RdPaGVw3YtKftxImA9xdrcGM8+nO9VS/QYR0V4E",
-	"+nBbeMQ6Jpfb3f7S1r7da26Zf2V9h3+YYzBbO3Lev9KcfQn+RcMteGnnDOSw/JG8Eu1Dbeh99hGYC8Os",
-	"r2DcgxDtY00jaTmGQLt03DB+V7cvia/xvEG7PsHlSHMHEzYJYOvffI+dt+UBhGGXrzWqBfTAeE4J5x+J",
-	"5nE2bu+WmP0mCVjP7xUFVC46vr70IVO97tMn3RaUWzXwG3Hj7o5a6+cq3R8mtSFMdXStFypsba4SBUVO",
-	"pGzGfs0GPfZLNtj78U83RyxthFT43/1PVQBd2lfN9+Dv/R//dPPjv7AtkCi+OPj885397Wa0NI2M/qto",
-	"ik7SqcZdUzPDPT0Po0WfXoUR8bt/qIf9kHReYRmGNk/Qt2PNDCdLaq2IHaFeVh1jqH42Y7ywmmEORvq3",
-	"6Zwytm51sqY29reoju3t/6pdH3ttRC5RRLgbXWii3LqIlnRI3VyfItTrPMc3F0jDatowr1b72dsudQyR",
-	"2pS/Cam87/DXVSHfpAA3Yz9Lu8wuvygDleZKbGB7o+fvZIGjVzc3t1Fu2l1uyhm+2SYrLrEGtnlZyUS3",
-	"YHprAGJ+c3NyRtjBLQ7ahYVvjImrFN6mx5PsckCU8qblbiHPC410lOdV+2i9bErocVdlNDImrnFThwUf",
-	"tRjq04Eo9PUFBiukCUv5QF+J+qO4cYZPqeofpvHg04WmlJ3w6Xv4SYkROoDw3/oC9nohVT1UqbzZ5CJY",
-	"oNLbEgzbTf2LIbWRTWwl3w/PRe9c1Fb/Vp2+NpeBAqAHjktVhT+lQymKQpj24KaJ4OpiQ3dmyJFo0Xao",
-	"YqMeMiOodJKIIn84uery2+Nk5/KWFk2f06nRN3IC49tG8GCrwTDxqBBuY7j/0o3hxgvrcKj7UOFl3uLj",
-	"bE/DukIHJl35CKjzZxIh0eKNWE1iPBfdjMTEKLvqolZ+grXcW01xtlG6dHXIaXiw3btS/dwOCCq+tei3",
-	"fXbCnh48+RXzRb0YGUzsoqVxmTGNMvKFcr7gqS+yKatwvQRJ6FRob29fQLxlsbDPNLpSeCF9DbTEF+Jq",
-	"qWjmc4PX5Ji41WfwcivZUnVUytJCZWzKKcy9xSiAD3gpY1Wls/R3O14K3TkFcu00+77UzidOk+uIcvyf",
-	"9HpLU2Pb3PEwz9dv3rxm9ACG4nZjd9GTRpbbQa81It5JV7RA4XysjWOWnOGByoT7A6O0LtX5onLznpu3",
-	"Z6dBNZjBZucHC7S7NOoQufOlEFNhDv0zh/6GpJ6URtrCamkHfw17jDyGKyyGjYtz+MOaCPImZD3LUL+v",
-	"FT4Ymtjm3IL35678IePs789fvWSv6SXgepoSoHQ+S1i6C2qh3e2Xvd7jTOFfwn/KdFFO/FdpXwFunpx/",
-	"g8bvlJ6Q/tdD/zqfCP84YjKvqwiTQLAazmFfKyF7FtIGNnDCfKvNJUAEJZakDmUr9DXgpwfIWI7G8JEM",
-	"OiKvmOSc5Gd8rUElFknfx7jA7t2t1Qq+SGpZDGas9fAqnHELlO+BYEEI9FLBoODqkmXaGDKjb2+Sydv0",
-	"Pu8s/rYAnLOY983HE9VCE0kDycfl0lQg2kyRTnxk04Z3k+g8RjjlIkN7bcKmRlhMxKHykqIOkArFrLst",
-	"uau3VqGJ6r9UlVQ/sgpNVlm1b0+C+TI8TeKwbVPGXkbezHnb/GaRwNXaqsmiQjZuCXI0lhmFMfi4siqs",
-	"bE2TGQ14XL1Mn8/8EB/qL+5iYLoP4K9nCSaD7YIN+Nvx7IgFkAMV9VBiofI6Vaf0un+dkN1dflatp1Kq",
-	"jRPVTakYt1EW6j0E2t3JQrVOAm3IJ980Z/YOLrSppoLw7W7rDRMBzkpFZQRaJOOwgyVmOQfUDRsexAAI",
-	"q1NxjOcfCHUze7Uu0pXqGc4Ock8nqT+fnH+DSHfXuML1VbXa9LDpOxtEIuqlpvWPIKKb25/Pysjw3JIo",
-	"iCLU+sOFtMZb/XmbBQg2gvkqyFX3dLlrM95DDZykTjRZabkEFKGxPmkez6JkRwR5KkwIdFtfHFqB5eti",
-	"Uqu9Z20ArlWqZKmnYX0MfOBA200N/G1Aq63tCxGsS6B3V6f2HRjkp6SWMfFb9Vblf/wYyla56+fVgZXk",
-	"bhEJhXJmFiMhGqSqKqAb0ceWNT3ZzNVX0c4VlLLe0JLrdSdr6So/YL40knpvGUtbp6pxviQqJ1IrN8mO",
-	"v50z1ZhaTxLtbiU41+tHcA8U76/JbN0G0DYonmeazIdBgDSlsofXRrrI43hoBK+Z0GGdP5RPpFpTzsSJ",
-	"zkplv/Vj0xc0wRmNj18hH7BVOhF+d0wTwXqDwHOPvvQ7pFkuT2N8GCSpj/O2JLclx9ygg58AVxaAektI",
-	"R/RwDN5PijgfC2RU/Be9LUYI5sSNi9w1R0xhBQNndMGyMTc8c8JUMeyOD6g6GBsKXyEq48ZIPsImkKVR",
-	"cyE9+8HctiSm5/f9/k2vtwN/fgF//Ab+OIE/voIv9571+ze/erak+N0bUIjvKJffIaNufblyafgotWxb",
-	"X4lCGtgisKMpoF0rtyIzwnXZOfakQTO3xsLC0jWbceVU83jNkhI0Y1LVP6WN3JpQhUd0N9k1AHE921aM",
-	"cy0WLk2h/tyxa1lgAFFtUjli1L+HW19Y1aEbkj6UuXTMGS6L7sccYC3dHayS7drarywpQEsLaYM53sL4",
-	"VpclHmGMd72dp3xneLzz7N0PX3zYiT8ebPJxb7896O5ta42gY4ZVgkoFV1HnlaNvMtp9jgEo/u/vptPJ",
-	"u/ngwMcrK2X+m51//+6HveTxkvU0qwVt6HXCGkB7u/b3+2lC5WFglPm0FXb+ZcLs1s02+zXLeuyXLNv7",
-	"8U83Lfk7vXWj9/fWfPBSqvz2WC98KoHpcei2i/NNrdnOxSChvdfnLKoZq7OCqSQx5VyGpn5ko2ipIdpI",
-	"+eY2ZGuuKaf51b2mF/2nZ/j+h6QzX0tpQ3aA5Yfa0+GUdq31rWeM18WgyPB7KadTkbcWhFpkBeXkgg/s",
-	"hWkZ/F//+f2/PfvqfV3jMioYEjk07UIsW9tyPqp2wkdFXcdh1tF2kwBuD9u2q/htPHsTOM8Ft26HcoBt",
-	"qJfUDRgKpN1i791QtROR1ZfuIxdxX9URWudf2qNQcSoba41vT7QPS/AttwYzars34UWBtcfLCdPDvuID",
-	"q4sSXZZxvRZ768Gh5EThHrav5gqLYZ/XhbJKc8WzQX3uJJ293Rv68/f7+PeM/vSfLP4Nm1sTxyqwv6Th",
-	"q8+n6up385/35774x/nP8w+cN744xmVhMz+RlUa62TlW4KIEVWz1eFxS6vIcNTr2LS5R+D1k1BaSUewC",
-	"cnQfvNBlyH/tITYM8cqjr1BeaY8YJ9nQHzHKEvS6lDpyUwhS1JK7rQkvHg6VEAPygUuq0X7s3JT6IEo1",
-	"1ItbisJcyH1kGz78UuGVqjtMNKqeVrcKK1TavuKNnxdMxkmo9yBd1fairnpGzSt8gktfUW15qr2MTWdt",
-	"XVBVOt+UwCZsWmhKgb0SxmJHCx+HZxFTfC9Qm7B/OA5+cqrc2xCx+qqvHj2i+pu+ZYdvBMEd9TboPnrE",
-	"op6NvosDFnqN9tJXUR+P0L4jYddjmY0xLbrqIJYbfq1WNvboqxWdPRAGzeYe8M1cg4++anb4wNtHha9X",
-	"tftgc90+2FfY35MOFKaqoVyLIUZMBXe+ZQRQkmCXTxG6v/gFO6nKstm+2qGwIoqroy6iWERQ8UtxkeGs",
-	"b2T49uzZCXv8+PFTtpUSRzlklcaUbid9xWDGt29OmFZMl25aui6rJXO8xOQdheWpEY2KDfOJKtkurOil",
-	"Lw8OP/qyeKdfffXVzq+eHDBiYLZLy/YKDeigM/aSv2QoueM7syNYTmjC3mx+7utzcS+++HrBLb1KsMc4",
-	"W6jYFTUcN1q7bfSJA0dNE4bUnHFmYddKFLgjrwExYnBwY4aggjQ6ulu2lbaJLIeU359ud2EpwUhQDQVA",
-	"ygptAQGAHRZFwixFQlGfjBLgl3GXjeEU1Yxmg7HqRtKw2twXgMGLk+uMaE8FMyJYA3HEsgKL9oHWVNJA",
-	"vpH6SGk8MdwMplvnGt+9xJ7PVmIGB3fCMF8uwzKe5/4NOvpQlqYmf7Yq6mBDVQebhNrJSJbIHwCQwBtY",
-	"37dDtgcs//MDdnx+cnrKCgEag01YLkeAplgroQv0/gL+OIQ/dtKEtsQpFJOaDftX4X7hu2yLxB+W1tc7",
-	"3e6yt0piEVS0jJAZBUaLLCkcEXqIKSweIaO2x6HCALGVviJSmO5e7aXMaBA1FPYA34AHHvvAATTUAHCV",
-	"6Ctt2ERjsVBkkLCQ977Z/Hs0B71nI8PhlN/31fudnZ3qf3gwZqfsfXxW7D16/5FlJWRlQO6Ftef8uzHz",
-	"Ze/Z89MX5xjEPwolM9/Ti8SUK9YSsxQaqcm12XvgLdbx4bB1BOI3NbOxR1WgC1bcA3TyAxP3Z+8Z/kNa",
-	"h9QfFoaiGtIuGLUMlJ4GRzjj4vrqq4bQgB38fed2hLjvIZZPJPE1kt/FjRMK8KKvWmSMQ8b9UY51gUF9",
-	"jx4BPmslHj3yIueE2v9MSN8KO+kraXEJImfiBkRf6QrMnTaCGpH7eja2oh3wdOCuhXACO/v31aupUMev",
-	"T1kQ2ULc0MTXm+b+rtY7B9JYS3OH7Lt3aV9thXEed3uMF4W+tv72EaC0KmZ4DV/BS/sIXXjl9EvgXgpO",
-	"imQtC1TxmE3Waz9O0JOWHfT2jog3yPCtJ+kgPXlI0YLw6cddlu6OsY7NH4FI7GIpHPrnRDgjs9D2YldP",
-	"heJT2Z3xSZH2FTJ5pf0kW2kAHAJiO1AA7OVSoTslc2CvMrYQrr+VLuvMnSYEFN5XqQ9cBpLUElTf0jZ8",
-	"IeAYqLGPOR7o3HMNkFOwxfrT3t7KeGTRHSG7Sncr6XR3v1m9MGVbab/T72AJG3jzeqwLen/7iGY/Of+G",
-	"ZaIoYNq1I5wTlqoUB9zbGXDgi9PxzGK9EbRcb6FMxxj1nmeIGUqwve1gjvIT/Wo3yFSpX04VBY3ruS10",
-	"Ogz3fSnM7BDLU8DaptyND2VOXCalRRye5mIy1U6obLbzWzFLYZGAfJW9diItCJLKx2PHoMeBSLKVNpge",
-	"DDEwS+wr3fVX7UVAD2ZnyvGbxKdwgJrimSmxtSupC0+NgWEd9HpHcVd6afvqOmpYPyhXd6pnWyDoe2d5",
-	"VGE5SBd9BTgHjL5C21C/iTMjsFa0rGHELsUMha6D/X1gcE96PdITgG70VZ9ShRQvCJX6naoHflrnaqRH",
-	"3mYCktgIFuJvsBeJCg1X+KVGag+TecmVrGBVVoi0DXZe6S4kpQWm20z8ANEzBp9WAuXFYGggCQup9qWY",
-	"Op8JXshM+JBvso13QEg0UrhQwZeyN2JtkiJMrPe8d3vdno+6ABrVOew87va6j8k2PEbFO1A5+PdItBlx",
-	"lb0GOWa/14NbV4iQv5EJa5FoFfJKdNlLlFMC5etW4VpSq9O8c9j5O+G+9lPN+cj2ez2f7ulCG9GI4v3B",
-	"h7zSRb3NOOXLn6HqPbcPXCZA4wnN1zZMta7dUKCUum7FVovO4Xfv0L5FlSI7z+WVUAKNlA4zOr+rd27J",
-	"4BF4xlIgvzYa7r8oLTnoxM1U+yB4Urzm4XtEj2DKCTJPkCOB+7hrbS7JluVDaCxzprSO7tTCmbzwK7v1",
-	"TGBdu9OCy7nTmLdCLwDez/AQoI/ANqn2sfQQYk699CTejAULwkqlFEVU4ppbNihlQRXd17r2frjNrn1Y",
-	"5AaAjpcOclZYfsL+8fjF84eA/5tYdVwFehKf1qQx3ridc8eBnzPufw3GFs+ygF+WxuAGn/Qe91Vtf58/",
-	"lfarf0aL+otQI5wbWzQI8xFkCd56fPtb58SV3yp+xSW5AVYdKzXeuYWkXe3t1oGrraf66BGaYw8fPZq3",
-	"wC6octoE1QWZKkXeMCUwz2sojcWq6rkw1HknjaLdUrRUeFHWs33FBrO+SmUe/9hlz2SBKnmmJwMQAVFW",
-	"On755RFLAZlRMMW+y1Z6g1vqdNpXVbHOhA20GwOtbaygy35L/QCnfORb7xxSPV1ileJK6tL21ZSPxGeW",
-	"pVGN+5Rxi9DAf/vMWkH9X4a03KO5F0AWa6+6z45DR0JpmcZOhUcoazStYbkgZ6w2feVCt+0Jzz1AEI3C",
-	"5AnpQ702FHourTsJ0cCVrGzRdQ9cooOScIghOGzGK66HQLGX/0PSPmwdLHN/Y1Yxlvc3ZJV+ut6QjSDk",
-	"ZWNGwcRrDRrFKC9UV+OmkIBtjZud1PiAka4tawDMaSxgneCaxfmfc9cye4V5y2Z3+h7mfs1Hgln5x6Wz",
-	"hFqD9UTen9A5fNKLsiX3GwmSLdkfi3MD027id5VuTWSjaqjRtrCqUcbal8oiS3/3gEyvboHSwvdeKYEb",
-	"gl0SD0Ded7AO7/sNr0q94St7t7/yVnFvNxU5vbQGt3ymzUDmucBogIP9p7e/8UbrF1zN/OrsX4ibV/z7",
-	"hErcSOsbUQce7vn1u6SzYGzEgNu1YmybzH/3B5l/eAAJACPbSP8eStdlp8SlKt+fVplIan7pG0ECVuRM",
-	"qr5Km716fDNZab27xoiq4G67bEjJKwtsre1g6kfo6p9+2Xl4/Fom//suLz9tlOod3P7GS+2e6VLlf604",
-	"eBxyaUNbIfSge0c8po+EtlQPjZ276ANZC0dX42QwdWUgiedMXIFqzAe6dFEYWFDSTKkSpou8EuC9QyFy",
-	"yKDxaDoVKt/RqpitwsRj3MJPEh1xac/1Uo0cwWR/RsmfAEpGVw9dV5kn8gEDPTItw8ANUG5aaNedUjTb",
-	"Q3BGUA9hDtQecTJ7NQImZxlnr1/+HZMTkBpXYNTrQrvXL//uIXEK17DrodAiow+k4iSfrGPZwl3+jEV/",
-	"cSyCixOhT8LoFj04Fwu3/AFQ6rwK06zbS4eiNGzCzaXIt5MQBodNl2nnGA9X1cXsqwFXOQmavOpkxqZc",
-	"iYJhYUZkgYSalaOIk8EfXTl9pfhEqlEYv4rfi2IDYXSv9t+G3ufffAL0tlejX97cyVT9M0L/RBGa7s3D",
-	"I3Qd34Ol1rTdBKnncfh0IRAV9lROmdNsr4f+Yh81FkXA+g1jPAQI6n3F50tsEjZnLd16uGNp/X3KtrxN",
-	"iGJIQ3DtdpctuJS77HUU28SjDiXV6riahcBPNNGOkbOjDnE95s5H8dhQ/U+bQBSOGkkqfYX9+izarYk0",
-	"pViEM2WWz4Jrm0ImCwwWK52VuS9e5YOKRd5XWIINpkFCxjipL97i7NUcCpDELv11pLCfB933fXXQe9pG",
-	"tSinLwLKR9ItRKzf6Hx2b1L+YlXxD83sB0zdekA1o6WI9xLzmo+jxtByvPNYVy2EL/iaav+fkd3eGmT3",
-	"RKth4UtwH+ytsabXfFZonr/R+jk3I0HvPVkHALacUlO4FyKX/M2McgIP9vfXedmHVgCl/ko56WZ/tWbI",
-	"ucbowxDrE1s9Yi6wJo9ZwVNMVcrvdnayWiZ8oa9QOiPyhvkC801OgbWkoXMpDRCal2JwYF+RrYTcgHWV",
-	"QCrj5lOCqLJfW/opo/pzUo0ww2NVZTYfJMxhATB2yrYO9vcroqyV2O6y4wZDwVKYrNBqJMziztDp9/Sw",
-	"pYtrX51h3reNbT6YWqL0NTFP20biqYzCfZhV75+4N6v5fWLCvtSce1aVjPyZWP9MrB/cOLYQGn/f9rGo",
-	"P9St+vucvasg53DVuUwPKTC/ChodzND3syxK4YWf+gHROGqbtUTf9fv/2d95/3e3KKJEoeZdiWWNqJVY",
-	"6wXmVXGf26WH6IZSL3TsT0vVMaIee3td9lpbqvGuKA8N/o0PU6YRKHq5HA6FQfUSJQ1Qn+bvfBiaOnne",
-	"RL9s7ff2to/6SmAIh6m3DuzYp3L6lGNk17FUUg0i0cHaV97CBWurly5ueOaKmQ83aqzrM1vVBUXdta/C",
-	"QpVXe0nOIZkBdMP9Xm+7y96MjbBjXeSWFWLoGMopw75K62TUFHMpI//uZ7bK4wy5nY2KDHasr3ELRUHl",
-	"SJlvuxYlOlK9DdyfBN3XB6aDvLS9XDV9EeKBHkL8aHax+8TiR+jCt0izKKgp40WIk587+aPqhBuNJD8k",
-	"nX0iVQ+8PkI7f37aNDpLUpoFAuu5zpY0EHrN3ThE2wRGkkacavcHuDYfsDBJ80CSVbbOn7i09rPw9RPU",
-	"lBF5KmqErRo4Xu9Y5KESDZsys6b05e/0PQhhSSj/oqvAm8EMFFD6OV2eb0CUtC1gdMrduA5uq9qhLkO9",
-	"TUIy52mHnYpMDmUWkbOIxs11628LvYtKFtcrWhn79+4vQsZr0fNnZ8tfHtNfqXAad0dlU67tMYnSthd8",
-	"nlh1JJRx34qKitT9OLzPZBtluKHERN2oJnVfhRS/KhCvqiniUzMiciEVxaIbrizPKEies/3eXl9NBFc2",
-	"yrX2icghq5n6ApDtS0W1IijHdVA6+i3Yt+osSi/MaoMVqyzbggVgJYGE8aKI2rWJ70teJMxpzYbiuq+o",
-	"3MA2+WxkUXjPTRLKA/gKWLFVrunvOGSGX/dVzh2vww7d2GDhuWs+67LTOEeXbR3c3GyHWjBesMKDOisL",
-	"YdlAzLRPafTpLyixHsbJlZPShlIXFGAGHwGm9TmFGmalOgoiMICkcjRz33Cz4ANRYHAWNxaDLftqyyx0",
-	"bGEjTYnAaQXJlC6Lu9ahZIOvCWHHcGQcK7XUZuEjf8eYzBvyeVzxnHKmf8GipNm+Ohcqx2IMzTxap9kE",
-	"lAYjHLrXLR8KSs+gMieAGnVZqKjDgvV5XhNc/qWYUpVM7lghuHVs/4CNdWks+fCrDl+gbaiRMFMjlQuJ",
-	"zedfH+/sP/kcy1o42+ibQEEDyEp8CZQQMddXhl9T6vVg5gSVxzgHPfFSzJKQEVLNlVBUXeXXCXn7OV2J",
-	"R4+oXzDHchThdB49ovRVUMaCsxHVx7nME1wFOguD9OyrvVB2cQz1MzEt+AynNaVIsZ6oFRlcVkDa2ufZ",
-	"3E7QeF28p0PM740fjDJOm9ut8FIqNizkaOwOfZYeTn3NEaIMzxBUW7rrLuru5uREoMcypAwZ3AnoqCja",
-	"jIRDIziMskX7PhPOzHaOh06YdJtJON06q2YolbRjNORLtETtAN0Kk8EV8zQDMB0meAIIX72OLZLhblyK",
-	"WXXjT86/YVspZl5m9ird7ivgZY36G+IG5Gd4ssuocuEJXbcdEKYPWfVyQHy4sz4V3lduyfRE1M216G7W",
-	"0hlLibykCUvribGKViMLayswLiIAaUg/TdmWnlKNm+0j72VP5wUdWB3Q0GhapGYD4aUwtnXQ621Xsihe",
-	"UGnZ2zfPdr5gW0C2qO0VoM4O+jgxcAczurBMTb6dYCWDg70ven215bfum2RhT77c3+5+Jz1iz5/BEZ2c",
-	"PX9G1QKEyu12lz2XSlhP7/FC9lVV6gXdMb9Igz+fjgfDB4DwhFKB1IALKw7EP3RpX3TJKQML5/UUhQ6s",
-	"y06w8IGtDJ7UMkvNyK3ry7pQdQSsieJ7/LyvoxqMvoaPRHTxw1y9l6rmy6VUWK9lJix7z9IwQoof8P00",
-	"lE8hQl0/HNhN1BC8/Ut8HflE/TJxoMarVOTAF4Fp1pQIbyk9AWo33wv1z//031lvboSqzEP1sm7vobb8",
-	"BxyHgHAhESRK17PUPG1up6Fu+8ILcz2LEyrsI1iPbdEjJCHtbVOxmR1Gjn5aDfBKo6+7rGqpFqoOTdEm",
-	"Az/aJoXHWhTVsSG++lOIBUEysSEiBgopuGsO0jyO7aAUIhuZmyGC15aXLKNaFjjN3AwRxLa77Exf0z1n",
-	"vk4C47buvQsjUXADwIf6FSEexPP6nqWyruugZogF0jLuj61Rkqy0gqVdzNLMRSYnvGDY7hBLVwS6hkRY",
-	"IZVK97pPxM7jdDthSlPNLV1arnLLrADq5jRmdL7kL4GgnqphWtWqKOSliMtFUTgvFbmqIIKBOBZdrgrL",
-	"gnhOg2VTmnmeQGQxxxjj8fX1Z5YBTleUFW8Wva7i6jl56UGaBxASqeGh7E4NQ/rdV00DOHrxuGbvquqS",
-	"XNUJ4yqiad7WAcQOxvAOaXzooPf0c5KFoqIbKPcmzPec3KQPJkMVqO15LJZCdwZhTKkZAGOsu0Jw3Prz",
-	"P/03iiSrpF+q3ugJK5EtbbCYmI+7gVee9HpeEqbPcTAazXvuS7CANuArPAqvmoEAgLwOazxgDJjSaodo",
-	"AsmPvmYhYwWfoTwz0NRyEPURsspElVk+szgo5QCbyDmAde+MLw1EtRdZCCLAMk8EuG63mwboU1bIDe7l",
-	"sK/SNO2rX3iJhCaOaOd0rJ1G3r6zx7Y8g1xkhNt9BZc0CSoJaWtNqh4IeFJhdhLoBAa84YEkSsLzInm+",
-	"l/S6T5Jet7fX20+SlU/0nn7R/sR+stftwRP7vSftTzxO9umJg709fILuQPg9wZef9JJvd3q9g/0lD+w9",
-	"fkwPPE72PUCXeCTOSrVxHEUkt/9WzDqLZjG4GXjTtur2gGOhtknp8WomOlqXGMU+Mm96k9VEV6vms8vW",
-	"dQ+p5+uubaE9YJCSk6qc5rJVzvXw+cis5nqJlfwNq9PAQnwj/QCUZQuKGq6tB7S6bdODxeqUUQRm0gnq",
-	"TXOARUAg/6aCljmRyNu7Sa/hh9u7z32FzhZLjLjYG9Nn11GoBdFNypLdAqnR02rjdfK+WjCQJOxa1C95",
-	"1hBMBUFd9Y7QyInWpvG3FGpGE0Co4CJt0F78bJWfVg/RGV65q0lHbpogQA1ex+9WFW7/kKzp6kO3Sqm8",
-	"r8+UimIHf3bz/ezme+hMC22xhLBH5CHWAg3IHMdZlauCYeO2WC2egQ0y8pd7BwK9CYEfVZfbQ1xxEN0p",
-	"qqS2LXiFFGNfg4nBf+etb6S/GZEJeSV8slQNg2WFmu4g65yV6qEzf2FZy2n1z962n0ISfqOh9H2gGNX8",
-	"Xc/9FqcnWVtiPLnhKteTUB62ci/s7X/BBtLZ7ZoNYp9EXz7YJ89TrycqU0UctuapqpgdNSp8kysJJUDA",
-	"MO+U6Ksxt2PEO/JJFXpkmXTLY5/e+E5QDyHNNdpFfWKJq9FNbAke4zEldREHfwDUPwp00p86lv/M1h+e",
-	"yiBuh1rdEY3xpGJNrz49XXHvXBSirQ/REvpyhhWvbdzkTLqm2ay3t117eXwEqc8Jw0jJqmkHWuQKLNnY",
-	"Vkn7oI1UfInLDaTi9tgemd85sse3pl7k7AeL0CKw/Bz58hPAEjqKj0CTZsHKZsug797BffAjzl+C08XO",
-	"Oq3tdNhW1F1iuxuFepXYqH2hn6YvBjDfe8dirQBp4mo/2JGg2yjcBjL/4qBL8pg9ZjbsoPF4cRrd4qBz",
-	"PXjiHoeNeDZx3fIyxVBjIHBofhBkFGmi3kEMWwdJES8rRDa1jPr61PdP6MbV/PAqtFQH9DWWQ3AS/tOX",
-	"/PX+k6gSbXfegkVgeffh/wUAAP//",
+	"7L3bchtJmhj8Kvlj9g+B6gIIgFR3i4yJWDYlTXNHpyGl1qwbGlaiKgHksJAJZWYRxLTosMM33lvf+AHW",
+	"foDdCMeEw3ft+/UzeJ7Ekd+XWZUFFECAIjW9tiZi1ARQlYcv8zuffmokcjKVggmjGwc/NcaMpkzBn6fM",
+	"qPnR0DBlP6VMJ4pPDZeicdA4Y4kUqSZGkhnlhgzYUCpGlH2Fi1G7ETUU+5BzxdLGgVE5ixo6GbMJtUNN",
+	"uOCTfNI46EQNM5+yxkGDC8NGTDWur6+jxpQqOmHGLeM4V5fs5MnyGt6MGUnsjw804amdktuvp9SMG1FD",
+	"0AkMnK5dyt8oNmwcNH61W0JhF3/Vu2/fnjxp2PWcpGwylYaJZP5bNl9eyBFJMs6EaSVjqZkgF2xOmpTY",
+	"9wnXhJKRlClJxpInbIeYMTVkQi+Y/cUCjLO0L+wSmTZE0yE7JJoxYsaMyClT1M7yQJNgznZf+N3ieZX7",
+	"DdbasoutwJ1ePWdiZMaNg27v28ieQ/HZQt0YpuyYf/jxqPVvaOtPndbj9vlB6/1P3ajb+/b6bxrFcWmj",
+	"uBgBcE5zsepwVC7u92iu7ft6KoVmcFW+o+kpwtF+SqQwTMCfdDrNeAKQ3J0qOcjY5Ks/arvQnzac8TW+",
+	"hZNWt/qCZkOpJiwlei4MvYrITEkxIhZWRCpCySXNckZkbjRP8WBx2AMy8e/2xd+dvXoZEUoQtmQ2ZooR",
+	"SkQ+GTBFBiyTYqQjQgXJxYWQM0GGnGWpfcUdHZGqLxQVI0YuucyoYfDrh5ypOSmQCi9gKpkmQhpiQTO3",
+	"F+o6ahxLMcx48lmhBxeFaZmrxCKyNtQwMpRqwC15gR8RM5oUsZ0odsnZjKWEZorRdB4R2hf404ybscwN",
+	"oWTITQT4hS/bHxDwdMIIL5EEkFUbnmWEi77d/mhsdhw8nsEyUiY+N0CMvGCCZDS50IRd2uPTiZwyknFt",
+	"WEq4IPFVy6NOC37Tcdsu+UTYm0Czp0pJ9TmX7ScmzM7cJnYbA5nOiaZzTaTI5qQPZL58qN8gVKSVQ7bE",
+	"4jpqvJTmmcxF+rnhbilTWlzHEknYFdcGVvaazjNJ0zdSPqdqxD73AgGi7CphzGGHZuqSqQeaJFIM+ShX",
+	"LCUZn3Bc7RlTlzxhbwW9pDyjg+yzLzilhg6oZiShwkJyYM+aJmOWEiFnkaWPfhs8YZZd6nFujKWAqZwJ",
+	"yzoWRZJWIZPUrcs9vRtIL7C0N1K+oGLu+IP+q2D0A11cdGXJHNdEXjJFuNH+0O5qu28Fzc1YKv4n9lmx",
+	"6AXXmotRVHK2qOBXUlnaLS9YSgaMKsuKLFQWNv3u3bvWUW7GTBi7SrYsW8TfwdsxUnUqSAzkJCbUGMUH",
+	"uWGkefrsmHz9zaPOznpRdFGeQdBNlUyY1hZfngrDzfxzQvAdy7KWEyi4mOYGGfZAMXoBImOeMSKHIdoc",
+	"OgjoGCiYJhbD+kIOh0ykFpVAUiiJbZ4xx+HeCp1Pp1IZlr5gKadvAB6fm/sDSjzQ5BhnbdlVWOSwBEOK",
+	"BVGY0CRhU6PbIH66OewSjuB7KhJ2YsEGa09Tbt+h2WtlBzDcCopDmmm2uJLybWLGiumxzFJ9CJCENWRs",
+	"aKwIRwyI7nZJTIy4YCCaD2meGdLUY5TLsgy5tBTw4ISZsUzhKk6DdfzUGNDk4jyhWXKeydm5kRlTdgXn",
+	"U5TB2FWS5ZpfshdeY8L7a28HNY2DRipzS9MjK9rjA91OJ6pTsFCMtEdezjnh4nxKtT4fKpogGH5aO/bG",
+	"I3+enYzlROqEpVQbnnAzP6fZdHzjbTyCh64jFEbsoW/5nhXLzuXwfMi3fXNCRUqNVDU65PGYWWFvZjVI",
+	"MqQ8yxX+F6/aJVMpT8whooIZM6UJtfpBesm1VHNQsQyb6JvWAvO8tAoYrOfqBF/qlvClSlGrN+aCf8iZ",
+	"+92eltsAy7be9dW50vd7FexVztgly7RTdPHRR+F7vWVrA76ozvWHnCpklJ9w/2VuMs7UeSLlhT5P722z",
+	"fh5t8tRyScfi72UulQu91XlfF4PIwR9ZYuwgJW19LTOezLckzU9BAyqosiWsQ6kSFnnCq0uSuzWNXYbO",
+	"p1PMbSjjBm+vpnMbvFxD5TZ4q5bGbfBehcJtT5AqJKiG3my0ggq12eSNCu24FYnYhBRs8dYCYm/wZhVN",
+	"b3zhOpSJfwwhsADzupuw8kKuvufRWixcj2GLB1A94uULXgFGPUyXzye8ue/rKJgH7aLlV/OR4EOegOAI",
+	"MLQUaA3J7bQfhSS33el0ujUHeiRoNkflZy2lrNI6tKyuR7gTAMOQ4zy54OZGa6t9ZvHOwFTu/VqI5Sk3",
+	"Ty+9ErH5HkrCuqAXWS1oRjVJpWARYe1Rm8QqF+1EMWpYGkckBitge8hN5TOdTpW8DL9RzC6TpXF72aYd",
+	"2RXIGp+HJVJe8UIDHShm1A5UP84CBaKGtQyfsLpnU2Yoz+rt6FOqDE/yjCodES6SLAeljnpLqAK7AtVS",
+	"tGtN9OGxUYsyuMGoUWCYm33lOT6Xoy1PkV16j9JGXCC4LUtsYGEHbuS6tR7T3C5Pr7g8aGjUVlPjGrRh",
+	"1DEPnEoJOExHlAttQnuakzL6IlHcMMUpGSo5IdN8kHE9ZikZ5Ty1L6N4ntGBVEBKHmg7smIpN6C6Rn2h",
+	"2CjP7I8wPyqG5OzVa1AryVSxhKUMhsLDJYM5mPBpZlE2JVOmtBR9UTjcMkY1cw4hD+ml2zXhwgv6y0wW",
+	"OPCWx2uPMDfInqqQfmYfJ7MxQ9U3sYOTROZZSpz9z78L0BIktuSepbE9DJgLIBPjlYzRfDwbz4OrPZAy",
+	"Y1RU0WZpz2BQq0eoQJSEq2BXZHkLGJQOicizbHEHY2qvigCHzoyiacJvpJ7i21HQ4opi+HpZafG6Mqvj",
+	"BcYD5zE0Y7tcWFHKEu9NKrRD0AxnXDO3sVA9XAbeJtyiIp7hSQXQDgZDk3ntVhQrzE6IdaY0mSRywgCd",
+	"aimotnhjhYwV5wgeU/+MPZoJoxpwFlxu4VF+8oHV879yhf7GFWCKSiwJD7sA1VqyW8K9zt0MF8CxooB2",
+	"TUG7OiBxKdBZnocSXRz1RRxIc/aXRUHOflfIYpZOcSnsd4X0BYMoZn+5ZOfa2F2p9BztrxGJC2EM3mKa",
+	"pznNzq1AZr9wUpeGUVLFhyZuE/eHx0MLL0IN4WLEtDmALQo2Kzz9OpPTgkr3BWIIFXCxzp4UhlFw8wlt",
+	"VD5hwsCvFEWqB5r0OmQitSGW2grTF15AwEl0VLoL3zFtRlSlBCUGuMOaNDVjfRH/5ukbsnvZ3TWKiVTH",
+	"O21yUsE6kouMaR1icca10RY5qe6L4k5EDi3sy4WdEW7t0LJ3K2cI0u2QhXX2BfilIj8PDlCMSppAX/Fb",
+	"xdDKSxZo1w6yDiasNFqrCVR1gBrpP5Tf3Z2xQnggsK+4MKHwDk8F16WU0e2fcEUCPHEUImpctezKW5dU",
+	"geHbbgEw5wUXz/028Au/F/j0nCYXr4bPYDvwxffLe4Lvv6PJxXFlX/D16VmxN/zsNnjm9vfUbQ9+PAn2",
+	"6J7GjZ7iPuG7V+Vm4fMT3DE65e0tReN3HTUQcsIFzazEUj5oBUUkD8Wtt6L6DcpJtxP87wbL0LEVkEBW",
+	"qSHOM9nSPLU3tXgKtSOLoHDolzTTEem0HxEjSaf9+PHjGxWnx48fV1SnR/WrMkpmzy0p1lvamc7GbDam",
+	"CmQ/Owj65DRpnpy9It98+02n1dvxLKUINBhQzTIuWLuGg9QpNudjPhpvqNW7NzI52/AFOH+24cMzqgQX",
+	"o20W5F/ZdEULPNMtrzrOwkIqu44qQKvlk3hUp3lWyylL+m2Fj2bxkRlCs3ZEjjMu2uR4zCZt0vuGNLuP",
+	"v+3ukP3HezsHJO62ejrug9SHETwDNpciJT//U8+ymqZb986hfXRPx+AnKp7ZI2dPDkncs4MQM5N9kUih",
+	"WZJbQuEfK3gVjAj37ZDEp619fIcEr0R2+L6gA3nJyFfwvHfogdgHIUIz8pf/+J96OPN+q6tjMpS5Issz",
+	"I+eEqbvh1N3OVUwME5VXnBsLnoYQJsdlLeOt8g8LskbUsOBoRI0efrLbaUQNux77W+dqQ0puD7WLI9i/",
+	"9vxfveK7033/1363eM6Ob29GrnSdGv9qSj/kjFywuWbGclItFWlaNP56P1clak8t5RAj8NoFkXOPur2N",
+	"IufOW++/+ps6mRbiGbd1ThK0aSDjb5N3XjlRjNpF6qqG5R6m9pJnVtZKJBsOecKtaG8FsSof1jGqXIm8",
+	"pIpbSTIG5xKbTM08svP0BWK0RpOHYHZ0Ow08Z8leRGKnhYAkFw+t8ha5ccG3BapcX1hVDq7MInFEMnFO",
+	"Ta0O4babC9C+/NNVlrHOvkJLe9rSb0lgNlirC/nn7Duwp+2s3HUW7vBkljd+IshEpixrsQ85Or+lSpk6",
+	"IJbjUEV+HHQiMui+j9wX51LxERfkR/juQ05TKw0k/rmIDHrvK67CzQzqznawV7f81ULAcQ3rt4c4QGE8",
+	"tZ+9GliIBPVCwDKjK65q3bz+NzKhRvErP3EI64jon/+5+fv//d/+3bvf7/zl3/+Pn/97RJScaSs2Bc8h",
+	"vCsguzPYrQcsGjXXo4MLeqS6wHiREm3kVpiRDpdn8BIqSdlIMaYtBIeKsVROIiIsjyHTQGEPnCUYE3F+",
+	"yZSuFVchaJtmfOCCOfB5JCuF+mf3BgGcaOSF53e77U67U2+w5elmAcNW3/AqYb3NqHADVVf9xKr4IjF4",
+	"kbWXrYcoUK+LZ3dWgRsJhBNY7bUATbHejAc/nSt2yVdD12ma/qH6i2KZXGXp3VrnuKU9N638BTx0HTVE",
+	"3T1y7KkEGGmCn9rqBlIwr4zmAnTRG4E5lbyWUKKL2LM1zxYjv12piJ81IiMl8ylLyWDu6BIXyFA0L0ns",
+	"5gEVFrSv7bLqyHvFb7gY58VHY+DpIbmxJNEwZTU6WEwzR6WOpWQoVZXM79zS8Agh4jft6xQeug7Ucp2u",
+	"IRQF6FN2yXHpujnfvdqJvPT4L/84I78mgsxg30QnNGO33QCYxm/cAT6F3tHzzWnEgnBUk/zi94oPrGAv",
+	"4C1aukqfyjS0oSbf7FKe4aOBk6+6jbfHb1+QRJbifGkqqJgSCsPBEj3yfPZ8I0Lxg3u6IBhOYLzxPfeY",
+	"1T/h7pwnVKTcMrU6Tw83YxLT3Mg4crHzxeMPNNGJVOwQRdvSXL4xtiPSHvsB61Der1GKSybqbTbfy5lD",
+	"A4ziAlxIHbsT9oZkXFs+KInOJ/Y/wmdYxQE61jNDHNh+sGJ1lr0aNg5+3GRX8P77ughNeI6R3K6pCQqn",
+	"YMQlO4GZEuENDMZFcwI1D1dzXvxw5+sK7KtUXyClhMn/xJQ8H1ORZg4cy8dgH6led41xyi6tiMyYssri",
+	"1Dinn5JpnnAxIlwMueCG+ZP0l8p5GwQjVEm8WutdspgHhSSqYP/LzL4ivJQKjcNuz6zD86+Hfh0W1d3a",
+	"RfAt6CrLdLIilVf5BkiZVZuwnaCwNAdqRMHjCx2rEKE85yopR0EPo4oCWRGfA/1uSTyttShZ2vmc623j",
+	"Fm6lRYIdf3MtEsh6PplQNa8jPYJdmfNkhd0D7SGe1ttHyZSOvI/MMemMavy6vZoPr7jGbi/VVQTAXwlr",
+	"FJ62M4i8EmxJ2kOvDTgXOR0JqQ1P9CGhwUdw+BcuQW4WMnxIU0hUPKQiQhIlpQGxa0CTi1bg33APoN29",
+	"A494HwcKBetivXPIzKvVlwOmazcF8yLdKaT4W4pMyaIXYSMlG4KjuDZe0b7FxF7urvcao3x+y6GBfKzU",
+	"4xQd3XbNhb8KztKHElZPq9vp/Pzn5sKhgmZcAfXObuXjrQVepKW33g9ysw3PPQiVOw9nrk/4y6zehS9o",
+	"TJ6DF265U+RDq7SlRV0CBKdD0kF89lftLtz7eLcW8SYAZbHU4hIHx7QChsHFXMKuaIlA1N7DAKFWEtSz",
+	"QkdYVNYgoghSbNvkqHSrg8V2irlC56hcxYdFfBkE5lhK1w4M/dWnLf91vmlYNkbXbeqwLdf8Gkc99YMG",
+	"Px2V4wffnhZTFZt37HHboMOK+fkObMoV+91m4w0pz1h6XpqWl+MPS2UT80Uwl5uj5X9KtSbN0v8vVRGK",
+	"sNNeGx+2KEjcmUFtO2PWXVqjbojYvplmbmszuL1avqxX31IxdlrOhirV51NDQrm/RnSv3vs1onwdxXvC",
+	"s7xey/a/kCHEu0KlA85SQoeGKcKFUwJIs4iN+bUjh+jt/Z//maRuiJ1D0kUeQweaCbCG3C7dZoPAiu8Z",
+	"zcx4SwJWXkBPoeUFkGKazjekwzjvq982/BJO8eXFi+KmqjuMILa8LlDFBVBTEYRmRd7sFDkdPvLeIkU0",
+	"nUzRSBg4YL/e38j/+n6xiEkn+nrvutYje+KcT1vqIIF/y7uvSlNgKPOhuzYeyFykYaBrROJMzpzzdcxH",
+	"47hwp9aoD/h2vRi9OoRjcyF6k6ygVWEfW8pWENnhoj28oOX3V3etbhXN84QZlmDCsEjJh5zCzcREZhfZ",
+	"E6G3b9HWqaHCwtSQOFHc8IRm50ARYtKkhWVoZ11w6YJlwI+SrA/lOjl7Rbrdb/f3Wj3i3/G1Y7zWbhbD",
+	"vK7Ok9uqhJXN3WY5HhYRmd96FasSH76XMzvHHA1wHrigeM/Gcwvx9oo8Cubih+rjv8NdOTJM8CW7TNyf",
+	"hepto7ozWaPanxx/T37XI8Xi8P5FZK+99/Of/9d/2D279WQfVk5Wd+Mj0u18woRLeGwZul3D0mWKVl36",
+	"5RNaGwb9opAftxLmfUT0jWkni4mppVS/Re6KE4GubwqP2MTkcrPbH4J5nW93RjVxr2zu8PdzDOYb5zi5",
+	"V6qzr8C/YLglL+2Cgdwuf8QvWf1QW3qfXaz80jCbKxh3IES7rIBAWg4hUC8dV4zfxe2Lwmu8aNAuT3A1",
+	"0tzChI0C2OY332HnTRlbftjVaw2qtt0znmNpkE9E87BuQueG7KoqCdjM7xWEVi87vp64kKlO+/Gjdg3K",
+	"rRv4Dbsyt0etzbNK7w6T6hCmOLraC+W3tlAzCCMnYjInvyaDDvmKDLo///nqkMSVkAr3u/upCKCL+6L6",
+	"nv1v7+c/X/38zxgd/u3+11+3egvJFDgy+K+CKRpRoxh3Q80M9vTcjxZ8euVHhO9+Vw57HTVeQcGcOk/Q",
+	"u7EkiqIltVTEDkEvK47R16mcE5ppSSBbLv7beEEZ27SOZFUb+1tQx7q9b+r1sdeKpRxEhNvRhSrKbYpo",
+	"UQPVzc0pQrnOM3hziTSspw2LarWbve5ShxApTfnbkMq7Dn9dl/yBCnA19jPXq+zyyzJQri7ZFrY3fP5W",
+	"Fjh8dXtzG2YR3+amnMKbdbLiCmtgnZcVTXRLprcKIBY3tyBn+B3c4KBdWvjWmLhO4a16PNEuZ4lSWrXc",
+	"LWXkgpEOM3JLH62TTRE9bquMBsbEDW7qMKOjGkN9DJkY5xCsEEckhpSN8iO7MopOsT4rJFzC05nE5Er/",
+	"6YP9SbAROIDgb3lu93rORTlULpzZ5NxboOKbUsHrTf3LIbWBTWwt3/fPBe+cl1b/Wp2+NJdZBUAODOWi",
+	"CH+Kh5xlGVP1wU0TRsX5lu5MnyNRo+1gbV05JIphkTsWRP5QdNWlN8fJLqQ1Lps+p1Mlr/jEjq8rwYO1",
+	"BsPIoYK/jUHOmb3xTBsY6i5UeJ7W+DjrszQvwYGJVz4A6uKZBEi0fCPWkxjHRbcjMSHKrruohZ9gI/dW",
+	"VZytFJleH3LqH6z3rhQ/1wMCyyQu+22fHZPH+4++Ia78IkGDiV62NK4ypmHtFCaMK03t8pt5Ea4XAQmd",
+	"Muns7UuItyoW9pkEVwrNuKtWGbmSiTW1J10Vhw05Jmz1mX25lmyJMiplZUlJMqUY5l5jFIAHnJSxriZl",
+	"/PuWk0JbJ5ZcG0k+5NK4EhfoOsJqLI86nZVFDOrc8Xae79+8eU3wAQjFbYfuokeVfNf9Tm1EvOGmLvXx",
+	"bCyVIRqd4Z7K+PtjR6ldqnHlPxc9N29PT7xqMLebXRzM0+5ciQPgzheMTZk6cM8cuBsSO1IaaAvrpR34",
+	"1e8x8BiusRhWLs7BTxsiyBtfn4L7Squ18IHQxDrnln1/4cofEEr+7uzVS/IaX7JcT2IClEznEYl3rVqo",
+	"d/t5p7OXCPgPc58SmeUT91XcFxY3j89+AON3jE9w9+uBe51OmHscMJmW9d5RIFgPZ7+vtZA99WkDWzhh",
+	"3kl1YSECEktUhrJlcmbx0wFkzEdj+xENOiwtmOSC5KdcVVjMtq6e7Ke4wO7crVULvkBqWQ5mDGpV+HDG",
+	"plW+B4x4IdBJBYOMiguSSKXQjL6zTU5/1fvcWv5tCTinIe9bjCcqhSaUBqJPy6UpQLSdIh25yKYt7ybS",
+	"eYhwSlkC9tqITBXTkIiDhYBZGSDl2w60a3JXb6wXFlTqKmpef2K9sKSwat+cBPPEP43isK5Txl4G3sxF",
+	"2/x2kcDF2orJgpJjZgVyVJYZhDG4uLIirGzT3HEY8Kh4GT+fuiGuyy9uY2C6C+BvZglGg+2SDfjdeH5I",
+	"PMgtFXVQIr5HBtYRdrp/mZDdXn1WtaeSZ+wH6CTiNruN6u8MFXpN4x5tRUeZXVrljwti7/qWFMPbgJby",
+	"7vCgV1QnG7quA91WTxNXxSEi9moXP4X1fuqrZylXcuIG+2JRnaJSI2s9AsHQxSaCglElUOuPS2xdV0Dl",
+	"glAdJA3fQVzkrQyKm+Q7+/T/bVOcb+HxnErstFIfZbBl3sZpLrDqQ81N9TtYYUU1lhlBJ6EQAH51IgzJ",
+	"/SNS2kRfblxfQzyD2a2YCtUz3Ofjsx+ARt42DHRzzbq0FG37zhaBo3KlJ+QTeN727oLTPPAT1OR1gsS7",
+	"+XA+C/VG9+t28ZyV2MsCcsU9Xe2JDvdQAicq84LWGpotiuBYnzXtalkQR/45ZcrHJW4uva7B8k0xqdY8",
+	"tzEAN6oss9IxtDkG3nNc9Lb+mDqglc6RpYDjFdC7bQzCLRjk56SWIfFb91bhLv4UylZEVyxqb2vJ3TIS",
+	"MmHUPERCsB8W5bW3oo81a3q0nWe2oJ1rKGW5oRXX61bG7XVu23Rl4Ht3FUvbpF1AuiKIKrACbFPM4GbO",
+	"VGJqOUmwu7Xg3KzRzx1QvH9NXoY6gNZB8SyRaO31AqTKhT6YKW4CB/GBYrRkQgdlulc64WJDORMmOs2F",
+	"fufGxi9wglMcH74CPqCL7C/47ggnsuv1As8dhj7cIit2ddbp/SBJeZw35SSuOOYKHfwMuLIE1Bs05ODh",
+	"ELyfFXE+Fchgp1m2NijGiGFXJvCuHRIhiwKjyZgqmhimipQDQwdYzI0MmSvolVClOB1Bd+VciYUIrJ63",
+	"jq4IwfpDv3/V6bTsv9/af76z/xzbf57aL7vP+v2rb56tqFX4xirEt5TLb5EAublcuTLaF3uhbq5EAQ2s",
+	"EdjBFFCvlWuWKGba5AyavYFXQkLFfm6qXS5TLFO9YQUQnDEqCovjRm7Mf4Mjup3s6oG4mSkyxLkag6TE",
+	"zAxqyIxnEO9VmlQOCTbGo9pVLDfgNcYPecoNMYryrP0pB1hKd/vrZLu6vmYrKrvjQmphrpi4Szbkawjf",
+	"GL5r5/3OP3xLS9tNJfA2KldXLbNsEVLWV2OCvhuSXDA2tSc+4aKs1wEBCFA8nTQpmSqJJgmaFUWVI28n",
+	"LustQ37JlunMhS90IwC/Lp6uFJzb6DriAKuqwRmVi6S++McblQddM2ZcpHJGxixLyURC/wQqSDfqdDoe",
+	"IlBAU2RzLACcpUwb9wAkTFkY19utL71Bfxv9LvQD3CjV1+cHl4cQlPgpbn5Q5CdYYAgyf8dusINUceQT",
+	"fBaf5H+YWGDfzhst6ruQ1VXfQyWorvZeE4t0dndWeNArZctvsUjNMpasLm6GZV5xhgKFIY8PiobdzBEB",
+	"frBprBRVnkw498rzfx0ivKsxayfL5JQ1olXuqKBHPnV0aSizTM50aGb3g9S2LoAFh+numdy0DEZ14Wdu",
+	"luq3YSuB6i++EONZuvxT2ayg+sNziXUzAqL1GYxf24Z3M0vx64lm2CYHO3PAJSvewHIxXLus1eaw8P75",
+	"EiUhNZ1g62p8WO/UU08uzkNuXdMH51YWz/oMXNf8C0/rgV5uarMYDS2Y5aRYTwELWQlJiot623qh28fH",
+	"V3lMfaiVb3ZbPuu9wcGZbV6GteppXcugwhj6ihHP564WcWal7bi8hdU7UNlrHT2CaxwiR57DzKGO1mk9",
+	"pq3hUevZ+5++vW6FH/e3+djt1efTvK0t/3lEoABoLqzaItMihm8y2n0OseXuvz9Op5P3i3k/e2uL4P9/",
+	"rX/7/qdutLdiPdVCoFsGlEF5z+6u/kMvjrDyox1lMSOdnD2JiG5e7ZBfk6RDviJJ9+c/X9Wk5nc2Tczt",
+	"bvjgBRfpzR5+eCqy08PQdRfnhxLrFtILIJTDlSMR86DhD/aFcujvAhmQPNS0B6hUc6LaF2LZkFu51b3G",
+	"F92nZ/D+ddRYLJO6pRgGQkI9ebUyYB0jmBNa1nnFIIELPp2ytLbW67LZIJ+c04E+VzWD/8s/fvz/T59+",
+	"LMvXB7UAg1hFvUSY65bzSWXRPimhMsygDLYbeXA72NZdxXfh7FXgPGdUmxbKO9qXQm17DCU5JFKQsiA/",
+	"IKuryo3Rn31RJl+cPdGHvphsMpYS3p5IF3Hs+p4PUOfRE5pl0AAunxA57As60DLLIRoxLMWobzw44P4Y",
+	"ya37YqFmsNVa46WKqXE109Ny3kbU6O5e4b9/6MF/5/iv+6Thv3ZzG+JYAfaXOHzx+URc/n7xc2/hi79f",
+	"/Lz4wFnliyNY1jWI9kmuuJmfQXFdrD3DqGLqKMeqRAvUyH4tFf8T8MAD8h08SzAsGaw/Li65TcBWow+g",
+	"a6tzNLg2cYWnAVKgKr4GSKBKJ1zEh0Qz5rILwFnJpXigSXzV8te8hTYbdzhYHdiSD1hSifZjY6aN62uQ",
+	"5oZyeUtBBDuGGulKeG4u4EqVbT4rDQ2KWwXF53Vf0MrPS+EFkS/lxk3Re7QsaIwdRF3uel9ggz9sq6IZ",
+	"SK5FrwRuXGdIHZFpJrG6zSVTGtqKuhQbDZiSiwshZ0JH5HdHPgQWm3JUzHF90RcPH2Jpfdc31XXjpAbb",
+	"yrUfPiRlbn21hV+5F+h85Jup+h6qEZmNeTKGikdFG/dU0ZlY2121L9a0VwUYVDus2m8Wuqz2RbXNKtw+",
+	"7GmzrucqWWi5Sp7SZNwXeKB2qhLKpRii2JRR4/p2WkribRcxQPdXvyLHRcVl3RctzBjAlBmgA1gfXNAL",
+	"dp7ArG+4//b02THZ29t7TJoxcpQDUihe8U7UF8TO+PbNsVWDZG6muWmT0ooLlxgj6ezyxAhHtfIqQaqk",
+	"23ZFL13nH/ujq3h98vTp09Y3j/YJMjDdxmU743dClZqTl/QlASsvvDM/tMtx1jtXtXCh9C514otrBVLT",
+	"MDYi1I6yWIw3MA4qKc0OhLtajhpHBKg5oUTbXQuWwY6ctZwgg7M3ZphrRhxWIPQ1acZ1IssBlu6Kd9p2",
+	"Kd6hVAxlgZRkUmOjxRnLsohoTHLAZqW5hV9CTTIGrXOOs9mxgKdZnFZ2tamr7QgXJ5UJ0p4CZkiwBuyQ",
+	"JBnU4yZ6bEFmB9KGZxnhIyHhxGAzUEkplfCu3WVENIfkbGqYIq4SniY0Td0bePS+4mRJ/nRRr037gm06",
+	"8m1RgCxh7IiFBNzA8r4dkK5l+V/vk6Oz45MTkjGrMeiIpHxk0RTKoLUtvT+3/xzYf1pxhFuimGUFiWvU",
+	"vWrvF7xLmij+kLi83vFOm7wVHPobgBcNFUQ7WuB1o4DQQ8hOdwhp+ZkdxNVNgj0BW+kLJIXx7mU3Jkpa",
+	"UcNSDU224IFHLsgUnHoWuIL1hVRo5cV5DuxCPuIH8hHMFR/JSFF7yh/74mOr1Sr+bx8M2Sn5GJ4V+QiR",
+	"osCyIvRIAfeCstLu3ZD5ko/k+cmLM7AYjHw1/I/4om+N6lhLyFJwpCrXJh8tb9GGDoe1IyC/KZmNPixi",
+	"2AvzjBsYuT/5SOAPrg1Qf7swENWAdtlRc0/pcXCAMyyuL55WhAbXhRUQDiDuGrmnE458DeV3dmWYsHjR",
+	"FzUyxgGh7ijHMgN3xsOHFp+lYA8fOpFzgt1gJ6hv+Z30BdewBJYSdmVFX24yKIukgFpZQQBKVeqCdtin",
+	"PXfNmLFswLLCV1Mmjl6fEC+y+ZSAiWslQ91dLXduSWMpzR2QH9/HfdH04+y1O4SCwdPdPgQUuBnsNXxl",
+	"X+oBdO0rJ08s9xL2pFDW0pYqHnlDWkQmNLOcyVJuT1zhcC/lBXMHZFe03+keIm/g/ltH0q305CCFC4Kn",
+	"99ok3h1Dico/WSKxC1Uu8c8JM4onvqPdrpwyQae8PaeTLO4LYPJCukmasQccAGLHUwDo3lqgO+ZpQ8N4",
+	"spSJ24zhqJBW7Lpvv/qjhrbJSJT6InY5iZYk1eTLxr4JHzL8uvTZA0uNXTrhQKaOa1g5xa7o68ed7tpU",
+	"Q9YeAbuKdwvpdLdXLUwek2bcb/QbUJ0SXFBjmeH7O4c4+/HZDyRhWWan3Th5MSKxiF2yxYBavjgdzzWU",
+	"EgTnQBNkOkLGjKYMwAxfd3e8OcpN9M2ul6lit5zSWG/Xc1NWpB/uQ87U/AB8TXZtU2rGBzxFLhPjIg5O",
+	"UjaZSsNEMm/9ls1ju0iLfIVvf8K1FSSFS7UMQQ8DoWTLtTc9KGRg6MYk8a67ai88ehA9F4ZeRS4726op",
+	"jpkiWwtMpJZh7Xc6h3h5kHBx3RdW1Gi50Qa5T2K1IlGeFfkNVrzgCSNN6JeNgZVB8xQvXfRFBm2lqSjQ",
+	"1pdmpUQxaAPDSxiRCzYHoWu/17MM7lGng3qCpRt90UdPiaAZolK/UfQtjcs07PjQ2UysJDayC3E32IlE",
+	"mbRX+KUEam8nc5IrWsGKhG+uK+y80F1QSvNMt5rTbUXPEHxSMJAXvaEBJSyg2hdgRQftMuMJc9mcGEfR",
+	"sEKi4sz45hyYmB1qk2hR1i5Ks91pd1yErqVRjYPGXrvT3kPb8BgUb0/l7N8jVmfEFXpm5Zhep2NvXcZ8",
+	"anYCDcE1oRm/ZG3yEuQUT/naRWg/l+IkbRw0fsPM926qhXiqXqfjKrkYFzIQUrw/umw2vKg3GadcZWNQ",
+	"vRf2Acu00HiE89UNU6xr1/cewD7bodWicfDje7BvYRH4xnN+yQQDI6WBYi0/ljvXaPDwPGMlkF8rae8/",
+	"yzUGc7GrqXT5rah4LcL3EB+BbHJgnlaOtNzHzKS6QFuWC7fWxKhcG7xTS2fywq3sxjOx69qdZpQvnMai",
+	"FXoJ8G6G+wB9ALZJsY+VhxBy6pUn8WbMiBdWCqUooBIzqskg5xk2a9ro2rvhtrv2fpFbADpcupWz/PIj",
+	"8vdHL57fB/zfhKrjOtCj+LQhjXHG7ZQaavk5oe5Xb2xxLMvyy1wp2OCjzl5flPb3xVOpv/qnuKi/CjWC",
+	"uaH7GlOfQJbsW3s3v3WGXPmtoJeUoxtg3bFiT80bSNpld7dMcqo91YcPwRx78PDhogV2SZWTyqsuwFQx",
+	"SpsIBiUchlxpaJiUMoVNNePAqRqDpcKJso7tCzKY90XM0/DHNnnGM1DJEzkZWBEQZKWjl08OSWyRGQRT",
+	"LlzNfRTvjYz7oqjDH5GBNGNLaysraJPfYqvvKR25rpoH2CoDWSW75DLXfTGlI/ZAkzhoXxUTqgEa8Lcr",
+	"muP6oA9xuYcLL1hZrL6hFjnyzca5JhKakB+CrFG1hqUMnbFS9QX8YmnahKYOINjq3U0eoT7UqUOh51yb",
+	"Y585VsjKGsI8LZdogCTs400PqlFbmyFQGBF6HdUPW8Z/3d2YRT7O3Q1ZePw3G7ISvrFqzCDxbKNBg3y2",
+	"pcLJVGXcYlvlZkclPkCcRM0aLOZUFrBJjM7y/M+pqZm9wLxVsxt5B3O/piNGNP/Tyll8GfFyoiLi61En",
+	"KITSq9Q+qckUXp7bMu0qfheVlJBsFL3y6hZW9MDb+FJpYOnv75Hpld0Na/jeK8FgQ3aXyAOA9+1vwvu+",
+	"o0UVZ3ile/MrbwV1dlOW4ksbcMtnUg14mjKIBtjvPb75jTdSvqBi7lan/0rcvODfxxivxa0COw94uOPX",
+	"76PGkrERkrM2yseqMv/dn3h6fQ8SAGRBoP495KZNTpBLFb4/KRIWlfzS9Xi3WJESLvoirrbhjNGhybVz",
+	"1yhW9NKolw0x0XmJrdUdTPkIXv2TJ437x69V8r9r4PjLRqnO/s1vvJTmmcxF+q8VB498mRzfMRQ86M4R",
+	"D6nGPhj9vrFzF3wgG+Hoepz0pq7ESuIpYZdWNaYDmZsgDMwraSoXkU8aAAHeORQChwwYj6ZTJtKWFNl8",
+	"HSYewRZ+kegIS3suV2rkACb9BSV/ASgZXD1wXSWOyHsMdMi0CgO3QLlpJk17itFs98EZrXpo5wDtESbT",
+	"lyPL5DSh5PXL3xA+sVLjGox6nUnz+uVv7hOnYA27Dgo1MvqAC4ryySaWLdjlFyz6q2ORvTgB+kQEb9G9",
+	"czF/y+8Bpc6KMM2mb31b1JskE6ouWLoT+TC4IqXDxcMVJe/7YkBFioImLZoUkykVLCNQcx1YIKJm4Sii",
+	"aPAHV05fCDrhYuTHL+L3gthAO7pT+29C77MfPgN668vRV1e3MlV/QehfKELjvbl/hC7je6CKstTbIPUi",
+	"Dp8sBaLaPeVTYiTpdsBf7KLGgghYt2GIh7CCel/Qxer5iM1JTSNOakhcfh+TprMJYQypD67daZMll3Kb",
+	"vA5im2jQfLBYHRVzH/gJJtoxcHbQIWZjalwUj/aFvaXyROGwkqTSF9CKW4PdGklTDPX1Y6Lp3Lu2MWQy",
+	"g2Cx3Gieurq0LqiYpX0B1ZXtNEDICEX1xVmcnZqDAZJDbkizjBR284D7vi/2O4/rqBbWfwiA8ol0CxDr",
+	"O5nO70zKX24YdF3NfoA0/3tUM2r686wwr7k4aggthzsPlU99+IIrfvp/GdntbEB2j6UYZi57cL+7wZpe",
+	"03kmafpGyudUjRi+92gTAOh8iv2eX7CU0zdzrB+x3+tt8rILrbCU+qkw3Mz/1Zohw+gvCPL1WQEBewm5",
+	"wIY8Zg1PUUWV7pvZyXqZ8IWEpF1H3iBfIJ6iI/Hcv2IkiV1IqWNIPukXggP7Am0l6AYsC4BjhWaXEoRF",
+	"u+tKlRAsLc3FCDI81hVddkHC1C7Ajh2T5n6vVxBlKdhOmxxVGArm6GdSjJha3hk4/R4fgBwL+QpckyEX",
+	"NGv3xSnUCNKhzQdSS4ScIfPUdSQeS27dhVn17ol7tVD3ZybsK825p0U1+C/E+guxvnfj2FJo/F3bx4LW",
+	"rzfq7wv2rgydw0VTYjnEwPwiaHQwB9/PqiiFF27qe0TjoCPuCn3X7f+Lv/Pu726WBYlC1bsSyhpBl+Da",
+	"C0yLQpA3Sw/BDT0igs3g/rku1kH77G6bvJYa2zcJzEOzf8PDmGlkFb2UD4dMgXoJkoZVnxbvvB8am/Rf",
+	"Bb80e53uzmFfMAjhUOXWLTt2qZwu5RjYdSiVFINwcLD2hbNw2bWVS2dXNDGuENTCuh7oooY86K594Rcq",
+	"nNqLcg7KDFY37HU6O23yZqyYHsss1SRjQ0NAThn2RVwmo8aQSxn4dx/oIo/T53ZWKjLosZzBFrIMS9cT",
+	"11E5SHTE2mywP251XxeYbuWlndWq6QsfD3Qf4ke1QfVnFj98g+1lmoVBTQnNfJz8wskfFidc6RF/HTV6",
+	"SKrueX2Idu78pKo0jcc0CwDWc5ms6A36mpqxj7bxjCQOONXuT/baXENhkuqBROtsnb9wae2L8PUL1JQB",
+	"eQpqBF3YKFzvUOTBEg3bMrOq9OXu9B0IYZEv/yKLwJvB3Cqg+HO8Ot8AKWldwOiUmnEZ3OaqZK5GvW1C",
+	"Mhdph56yhA95EpCzgMahYXSgmTCrQu+C9hblitbG/r3/q5DxUvT84mz562P6K+FP4/aorPKNPSZB2vaS",
+	"zxOqjviWP82gqEjZas/5THZAhhtySNQN+pf0hU/xKwLxipoiLjUjIBdcYCy6okLTBIPkKel1un0xYVTo",
+	"INfaJSL7rGbsIYW2LxHUisAc10Fu8Ddv3yqzKJ0wKxVUrNKkaRcAlQQiQrMs6MTMPuQ0i4iRkgzZrC+w",
+	"3MAO+mx4ljnPTeTLA7gKWKFVrurvOCCKzvoipYaWYYdmrKBI8YzO2+QkzNElzf2rqx1fC8YJVnBQp1DI",
+	"bsDm0qU0uvQXkFgPwuTKSa59qQsMMLMfLUzLc/I1zHJx6EVgC5LC0UxdL/2MDlgGwVlUaQi27IumWmrG",
+	"SEYSE4HjApIxXhYzk75kg6sJocf2yChUainNwofujhGeVuTzsDsO5kz/igRJs31xxkQKxRiqebRGkolV",
+	"GhQz4F7XdMgwPQPLnFjUKMtCBd24tMvzmsDyL9gUK6pTQzJGtSG9fTKWudLowy+a91ptQ4yYmioujE9s",
+	"Pvv+qNV79DWUtTC60mMLgwaAlbgSKD5iri8UnWHq9WBuGJbHOLN64gWbRz4jpJgrwqi6wq/j8/ZTvBIP",
+	"H0rFR1xQKEfhT+fhQ0xftcqYdzaC+riQeQKrAGehl55dtRfMLg6hfsqmGZ3DtCpnMdSe1yyxl9Uibenz",
+	"rG7Ha7wm3NMB5PeGDwYZp9XtFnjJBRlmfDQ2By5LD6aeUYAogTO0qi3edRM0bjZ8wsBj6VOGFOzE6qgg",
+	"2oyYASO4HaWJ+z5lRs1bR0PDVLxDuD3dMqtmyAXXY99kEHZxVE5mr5ijGRbT7QSPLMIXr1tVGO7GBZsX",
+	"N/747AfSjCHzMtGX8U5fWF5Wqb/Brqz8bJ9sE6xceIzXrWWF6QNSvOwR395ZlwrvKrckcsLKvrl4N0vp",
+	"jMRIXuKIxOXEUEWrkoXV9IwLCUDs009j0pRTrHGzc+i87PGioGNXZ2loMC1QswFzUhhp7nc6O4UsCheU",
+	"a/L2zbPWt6RpyRYW/Lao0wIfJwTuQEYXlKlJdyKoZLDf/bbTF023ddf/Ftptp+529xvxIXn+zB7R8enz",
+	"Z1gtgIlU77TJcy6KqqJwIfuiKPUC7phfxd6fj8cD4QOW8PhSgdhbFyoOhD+0cV94yTEDC+Z1FAUPrE2O",
+	"ofCBLgye2A1XzNGt68q6YHUEqIni2nd+LKMalJzZj0h04cNCvZei5ssFF1CvZc40+UhiP0IMH+D92JdP",
+	"QUJdPuzZTVmaZ8WX8DrwifJl5ECVV7HIgSsCU60p4d8ScmKpHan8HJG//MN/JZ2FEYoyD8XLsr498uof",
+	"YBwEwjkHkAhZzlLytIWd+h4/Sy/4H8gQOhdEWNiHkQ5p4iMoIXV3sNhMi6CjH1djeaWSszYpuiX7qkNT",
+	"sMnYH3WVwkMtiuLYAF/dKYSCIJrYABE9hWTUVAepHseOVwqBjSzMEMCr6STLoJYFTLMwQwCxnTY5lTO8",
+	"58TVSSBUk0IosSNhcIOFD/a2BDwI5wXu55CiqG5qsYBrQt2xVUqS5ZqRuA1ZmilL+IRmBCrLQ+kKT9eA",
+	"CAugUnG3/Yi19uKdiAiJNbdkrqlINdHMUjcjIaPzJX1pCeqJGMZFrYqMX7CwXBSG82KRqwIiEIijweUq",
+	"oCyI4zRQNqWa52mJLOQYQzy+nD3QxOJ0QVnhZuHrIqyek+YOpKkHIZIaWtSvLmCIv7uqaRaOTjwu2TvK",
+	"61YUKuqEURHQNGfrsMTOjuEc0vDQfufx1ygLBUU3QO6NiGsnv02LewIqUN3zUCwF7wzAGFMzLIyh7grC",
+	"sfmXf/gvGElWSL9YvdERViRbUkExMRd3Y1951Ok4SRg/h8FoOO+ZK8FitQFX4ZE51cwKAMDroMYDxIAJ",
+	"KVpIE1B+dDULCcnoHOSZgcRu4qCPoFUmqMzyQMOgmAOsAucA1L1TrjQQ1l4kPogAyjwh4Nrtduyhj1kh",
+	"V7CXg76I47gvfuUkEpw4oJ3TsTQSeHurS5qOQS4zwp2+sJc08ioJamtVqu4JeFRgduTpBAS8wYFEgtvn",
+	"WfS8G3Xaj6JOu9Pt9KJo7ROdx9/WP9GLuu2OfaLXeVT/xF7Uwyf2u114Au+A/z2Clx91onetTme/t+KB",
+	"7t4ePrAX9RxAV3gkTnOxdRxFILf/ls0by2YxezPgpjXLzt9jJnZQ6XFqJjhaVxjFPjFvepvVBFer5LOr",
+	"1nUHqeebrm2plbSXkqOinOaqVS70e/zErOZyiYX8bVcnLQuBBZZAWbWgoDnvZkArW3zeW6xOHkRgRg2v",
+	"3lQHWAYE8G8saJkiiYRy85X68jVR6zf54bp3uS/fBW2FERf6qLvsOt9TQhVZsk0rNTparZxO3hdLBpII",
+	"+1e4lxxr8KYCr646R2jgRKvT+GsKNYMJwFdw4dprL262wk8rh+AML9zVqCNXTRBWDd7E71YUbr+ONnT1",
+	"gVslF87Xp3KBsYNf3Hxf3Hz3nWkhNZQQdog8hFqgHpnDOKt8XTBs2EK1xjOwRUb+au+Apzc+8IN6M94B",
+	"rNiL7hhVUtoWnEIKsa/exOC+c9Y31N8USxi/ZC5ZqoTBqkJNt5B1TnNx35m/dlmrafUXb9svIQkfcM1f",
+	"3rtAMaz5u5n7LUxP0jqHeHJFRSonvjxs4V7o9r4lA270TskGoae2Kx/skuexLyiWqUIOW/JUkc0PKxW+",
+	"0ZUEEqDFMOeU6Isx1WPAO/RJZXKkCTerY5/euK6h9yHNVVqLfmaJq9J5dgUewzFFZREHdwDYa9TqpL90",
+	"LP/C1u+fygBu+1rdAY1xpGJDrz4+XXDvlGWsrg/RCvpyChWvddgQl5uq2azT3Sm9PC6C1OWEQaRk0bQD",
+	"LHIZlGysq6S9X0cqnsByPam4ObaHp7eO7MGufTWcfX8ZWgiWL5EvvwAswaP4dDRRTKT6nupqOLUaY+0W",
+	"s+6LIImwqk1QgwqyaPtCDklc3P8gKziGrp6xs14VrUudijxhVATNLcjZExipdHzH/o3YdzFIg+UGHX2L",
+	"CXudnUOItoA+8M6mrbkh1JCf/6lHzp6Q5owqwcUIXbY//9MefInBOTvgfsCywmdjNhtTZaCvhSHNk7NX",
+	"5Jtvv+m0em4775g2I1ABIFql2+rpcvCIdFt7OuqLXqunI3La2tcR2W910Tva7VyRJqac7IBBY6G3pgOs",
+	"36YL8nENFcCYIaQpum0eLvfdVMwX+HfO52IC32mlTY7KAuguVhxrGGVsMXq+L1wLydT524eQv4dejZlc",
+	"Opy6jrgHfRHjeYBHCop5gkAmcUquSyC0yZEhE1m0Xi531Rf2Yh+SuGhgHPvmSat6PDcFVeDtMh4WUPfU",
+	"HiKgFXEMPQrkQzAmJSxy4ZFBZyQ5E33xu2OsBZ7mimnUDhc6JlW7JZ29eu0CDqAoVL3Ch93Pty8qejeh",
+	"ouuLjN7fHGH76g1F2IVm4l/Kei62iZ5QMV/EyagUg6BpQpWARhhAFvaXXrXKoEVrTWXQ3urKoL3PHB2M",
+	"+LRCx9FMQSMYi7plV3zvAxVp0BviS+7anYtFTxQfGi9xLPYIlxA0yie+1OUCM7eHU+W891W3BaWu+6zB",
+	"BNo2NES3AtRvnr4h5byLhbFLthC5fn5Uu8hSAA9IKQeh7OCi8tD8iKwM/MmM4G23X6BM1BeBKIRwjooI",
+	"DTcaiB6IFcz3P8EyUWj6hOjZzPLu0xphBEpw21WvY34r6zd94YFfeOD/wzzwU4uOAWn4wsbuo9ZLSXqx",
+	"mhjQ7nuqJlZtXlFtH/zje3uP3ISL+HCy3GW3trUuaQadJnfaQdpXLnRN5MwzVxhwsQ+vBt7CVVj5F7oT",
+	"titF3C1MlgddUdPMWekqMVHheGFJneVBF/rxBgVnqrltbFbzMuZTQ1Kwb4ToWTNXQR9hAm2EOQuX5bOc",
+	"akZ9feJ6KbZD8gdmoRpy6vot+UQl+NO1/3GcOuhK016MZkGwvL/+PwEAAP//",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
