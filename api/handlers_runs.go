@@ -151,7 +151,7 @@ func csvProblem(err error) error {
 	}
 	fields := make([]ProblemField, 0, len(ce.Errors))
 	for _, e := range ce.Errors {
-		fields = append(fields, ProblemField{Pointer: e.Pointer, Detail: e.Detail})
+		fields = append(fields, ProblemField(e))
 	}
 	detail := "the CSV body does not follow the documented layout"
 	if len(fields) == 1 {

@@ -195,7 +195,18 @@ func TestLimits(t *testing.T) {
 }
 
 func TestAutoWeighting(t *testing.T) {
-	r := fitOrFatal(t, photometerPoints(), Options{Weighting: WeightAuto})
+	// The photometer run with its top levels biased (+4 % at 100, −3 % at
+	// 50): an unweighted line follows them and misreads the low standards.
+	pts := photometerPoints()
+	for i := range pts {
+		switch pts[i].X {
+		case 100:
+			pts[i].Y *= 1.04
+		case 50:
+			pts[i].Y *= 0.97
+		}
+	}
+	r := fitOrFatal(t, pts, Options{Weighting: WeightAuto})
 	if len(r.WeightCandidates) != 6 {
 		t.Fatalf("%d candidates", len(r.WeightCandidates))
 	}
@@ -222,9 +233,14 @@ func TestAutoWeighting(t *testing.T) {
 			t.Errorf("%s has Σ|%%RE| %v below the chosen %s's %v", c.Weighting, c.SumAbsRE, best.Weighting, best.SumAbsRE)
 		}
 	}
-	if chosen != 1 || r.Weighting == WeightNone || r.WeightingRequested != WeightAuto {
-		t.Errorf("chosen %d, weighting %s, requested %s; relative scatter calls for 1/x² or 1/y²", chosen, r.Weighting, r.WeightingRequested)
+	if chosen != 1 || r.WeightingRequested != WeightAuto {
+		t.Errorf("chosen %d, requested %s", chosen, r.WeightingRequested)
 	}
+	none, inv2 := r.WeightCandidates[0], r.WeightCandidates[2]
+	if !(none.SumAbsRE > 2*inv2.SumAbsRE) || r.Weighting == WeightNone {
+		t.Errorf("Σ|%%RE| none %v, 1/x² %v, chosen %s: relative scatter calls for weighting", none.SumAbsRE, inv2.SumAbsRE, r.Weighting)
+	}
+	t.Logf("chosen %s; scores %+v", r.Weighting, r.WeightCandidates)
 	// Without replicates 1/s² is skipped, with the reason.
 	r = fitOrFatal(t, singles(photometerPoints()), Options{Weighting: WeightAuto})
 	last := r.WeightCandidates[len(r.WeightCandidates)-1]
@@ -285,4 +301,26 @@ func TestPredictFlags(t *testing.T) {
 			t.Errorf("dilution %v/%v flags %v/%v", a.Dilution, b.Dilution, a.Flags, b.Flags)
 		}
 	})
+}
+
+// TestExcludedPoints: an excluded reading is not in the fit (the fit equals
+// the fit without it) but is still reported, back-calculated, with weight 0.
+func TestExcludedPoints(t *testing.T) {
+	pts := photometerPoints()
+	pts[9].Excluded = true
+	pts[9].Y *= 1.5 // would be an outlier if fitted
+	with := fitOrFatal(t, pts, Options{Weighting: WeightInvX2})
+	without := fitOrFatal(t, append(append([]Point(nil), pts[:9]...), pts[10:]...), Options{Weighting: WeightInvX2})
+	for j := range with.Coefficients {
+		if !closeTo(with.Coefficients[j], without.Coefficients[j], 1e-12, 0) {
+			t.Errorf("coefficient %d: %v with an excluded point, %v without it", j, with.Coefficients[j], without.Coefficients[j])
+		}
+	}
+	p := with.Points[9]
+	if with.N != 15 || p.Weight != 0 || !p.Excluded || !p.HasBackCalc || !p.HasRelativeError || math.Abs(p.RelativeErrorPct) < 40 {
+		t.Errorf("N %d, excluded point %+v", with.N, p)
+	}
+	if got, want := len(with.Cautions), 3; got != want || !strings.Contains(strings.Join(with.Cautions, " "), "qualified person") {
+		t.Errorf("cautions %q", with.Cautions)
+	}
 }

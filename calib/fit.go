@@ -1,12 +1,10 @@
 package calib
 
 import (
-	"errors"
+	"cmp"
 	"math"
-	"sort"
+	"slices"
 	"strconv"
-
-	"gonum.org/v1/gonum/mat"
 )
 
 // dataset holds the fitted (non-excluded) readings and their levels.
@@ -135,8 +133,10 @@ func prepare(points []Point, model Model) (*dataset, error) {
 	if len(points) == 0 {
 		return nil, inputErr("points", "no calibration points")
 	}
-	labels := make(map[string]float64)
-	d := &dataset{}
+	lab := newLabels(len(points))
+	n0 := len(points)
+	buf := make([]float64, 2*n0)
+	d := &dataset{idx: make([]int, 0, n0), x: buf[:0:n0], y: buf[n0 : n0 : 2*n0]}
 	for i, p := range points {
 		f := "points[" + strconv.Itoa(i) + "]"
 		if math.IsNaN(p.X) || math.IsInf(p.X, 0) {
@@ -149,10 +149,9 @@ func prepare(points []Point, model Model) (*dataset, error) {
 			return nil, inputErr(f+".y", "response is not a finite number")
 		}
 		if p.Level != "" {
-			if x, ok := labels[p.Level]; ok && x != p.X {
+			if x, ok := lab.add(p.Level, p.X); !ok {
 				return nil, inputErr(f+".level", "level %q has readings at two concentrations (%v and %v)", p.Level, x, p.X)
 			}
-			labels[p.Level] = p.X
 		}
 		if !p.Excluded {
 			d.idx = append(d.idx, i)
@@ -191,20 +190,59 @@ func prepare(points []Point, model Model) (*dataset, error) {
 	return d, nil
 }
 
+// labels records the concentration of each level label: a short list
+// searched linearly for a typical run, a map for long ones.
+type labels struct {
+	list []labelX
+	m    map[string]float64
+}
+
+type labelX struct {
+	label string
+	x     float64
+}
+
+func newLabels(n int) *labels {
+	if n > 64 {
+		return &labels{m: make(map[string]float64, n)}
+	}
+	return &labels{list: make([]labelX, 0, n)}
+}
+
+// add records label at x; ok is false (with the earlier x) if the label was
+// already seen at another concentration.
+func (l *labels) add(label string, x float64) (float64, bool) {
+	if l.m != nil {
+		if old, seen := l.m[label]; seen {
+			return old, old == x
+		}
+		l.m[label] = x
+		return x, true
+	}
+	for _, e := range l.list {
+		if e.label == label {
+			return e.x, e.x == x
+		}
+	}
+	l.list = append(l.list, labelX{label, x})
+	return x, true
+}
+
 // groupLevels groups the fitted readings by exact nominal concentration.
 func (d *dataset) groupLevels() {
 	order := make([]int, len(d.x))
 	for i := range order {
 		order[i] = i
 	}
-	sort.SliceStable(order, func(a, b int) bool { return d.x[order[a]] < d.x[order[b]] })
+	slices.SortStableFunc(order, func(a, b int) int { return cmp.Compare(d.x[a], d.x[b]) })
+	// order is sorted by x, so each level's indices are a run of it.
 	d.levels = d.levels[:0]
-	for _, i := range order {
-		if k := len(d.levels); k > 0 && d.levels[k-1].x == d.x[i] {
-			d.levels[k-1].idx = append(d.levels[k-1].idx, i)
+	for k, i := range order {
+		if l := len(d.levels); l > 0 && d.levels[l-1].x == d.x[i] {
+			d.levels[l-1].idx = order[k-len(d.levels[l-1].idx) : k+1 : k+1]
 			continue
 		}
-		d.levels = append(d.levels, level{x: d.x[i], idx: []int{i}})
+		d.levels = append(d.levels, level{x: d.x[i], idx: order[k : k+1 : k+1]})
 	}
 	for l := range d.levels {
 		lv := &d.levels[l]
@@ -222,211 +260,6 @@ func (d *dataset) groupLevels() {
 			lv.sd = math.Sqrt(ss / float64(lv.count-1))
 		}
 	}
-}
-
-// lsq is a weighted least-squares solution.
-type lsq struct {
-	p      int
-	beta   []float64 // coefficients, model-equation order
-	xtwx   []float64 // (XᵀWX)⁻¹, p×p row-major
-	s      float64   // √(Σw e²/df)
-	ssr    float64   // Σw e²
-	df     int
-	r2     float64
-	fitted []float64
-	resid  []float64
-	lev    []float64 // diagonal of the weighted hat matrix
-}
-
-// basis fills v with the regressors of model at x: (1, x), (x) or (1, x, x²).
-func basis(m Model, x float64, v []float64) {
-	switch m {
-	case LinearOrigin:
-		v[0] = x
-	case Quadratic:
-		v[0], v[1], v[2] = 1, x, x*x
-	default:
-		v[0], v[1] = 1, x
-	}
-}
-
-// solveLSQ solves min Σwᵢ(yᵢ − Xᵢβ)² by Householder QR of √W·X·D (gonum
-// mat.QR), D a diagonal of powers of two that scales each column to unit
-// order (exact, and it keeps R well scaled). With R the triangular factor,
-// β = D·R⁻¹Qᵀ√W·y, refined once by solving for the correction from the
-// residuals e = y − Xβ, which are accumulated in double-double arithmetic
-// (mixed-precision iterative refinement); (XᵀWX)⁻¹ = D·R⁻¹R⁻ᵀ·D and the
-// leverages hᵢ = ‖(√wᵢ·Xᵢ·D)R⁻¹‖².
-//
-// Preconditions: len(x) = len(y) = len(w) = n > p, w > 0; otherwise, or if
-// √W·X is numerically rank-deficient, an *InputError. The weights are used
-// as given (no normalisation): scaling them by k scales s by √k and leaves
-// β, s²(XᵀWX)⁻¹, leverages and studentised residuals unchanged.
-func solveLSQ(model Model, x, y, w []float64) (lsq, error) {
-	n, p := len(x), nParams(model)
-	if n <= p {
-		return lsq{}, inputErr("points", "%d readings for %d coefficients", n, p)
-	}
-	// One allocation for the design (n·p), the right-hand side (n), and the
-	// fitted values, residuals and leverages (3n).
-	buf := make([]float64, n*p+4*n)
-	data, rhs := buf[:n*p:n*p], buf[n*p:n*p+n:n*p+n]
-	var v [3]float64
-	var norms [3]float64
-	for i := range x {
-		r := math.Sqrt(w[i])
-		basis(model, x[i], v[:])
-		for j := 0; j < p; j++ {
-			a := r * v[j]
-			data[i*p+j] = a
-			norms[j] += a * a
-		}
-	}
-	var scale [3]float64
-	for j := 0; j < p; j++ {
-		e := 0
-		if norms[j] > 0 && !math.IsInf(norms[j], 0) {
-			_, e = math.Frexp(math.Sqrt(norms[j]))
-		}
-		scale[j] = math.Ldexp(1, -e)
-	}
-	for i := 0; i < n; i++ {
-		for j := 0; j < p; j++ {
-			data[i*p+j] *= scale[j]
-		}
-	}
-	for _, a := range data {
-		if math.IsNaN(a) || math.IsInf(a, 0) {
-			return lsq{}, inputErr("points", "values are outside the numerically usable range")
-		}
-	}
-	var qr mat.QR
-	qr.Factorize(mat.NewDense(n, p, data))
-	var rt mat.Dense
-	qr.RTo(&rt)
-
-	// R⁻¹ by back substitution (p ≤ 3), with a rank check on the diagonal.
-	var r, rinv [3][3]float64
-	maxd := 0.0
-	for j := 0; j < p; j++ {
-		for k := j; k < p; k++ {
-			r[j][k] = rt.At(j, k)
-		}
-		maxd = math.Max(maxd, math.Abs(r[j][j]))
-	}
-	for j := 0; j < p; j++ {
-		if !(math.Abs(r[j][j]) > 1e-11*maxd) {
-			return lsq{}, inputErr("points", "the concentrations are too close together to fit %s (numerically singular)", model)
-		}
-	}
-	for j := p - 1; j >= 0; j-- {
-		rinv[j][j] = 1 / r[j][j]
-		for k := j + 1; k < p; k++ {
-			var s float64
-			for l := j + 1; l <= k; l++ {
-				s += r[j][l] * rinv[l][k]
-			}
-			rinv[j][k] = -s / r[j][j]
-		}
-	}
-	out := lsq{p: p, df: n - p, beta: make([]float64, p), xtwx: make([]float64, p*p)}
-	out.fitted, out.resid, out.lev = buf[n*p+n:n*p+2*n:n*p+2*n], buf[n*p+2*n:n*p+3*n:n*p+3*n], buf[n*p+3*n:]
-	bm := mat.NewDense(n, 1, rhs)
-	var sol mat.Dense
-	for pass := 0; pass < 2; pass++ {
-		// pass 0 solves for β; pass 1 for the correction from the residuals.
-		for i := range x {
-			e := y[i]
-			if pass == 1 {
-				e = residualDD(model, out.beta, x[i], y[i])
-			}
-			rhs[i] = math.Sqrt(w[i]) * e
-		}
-		if err := qr.SolveTo(&sol, false, bm); err != nil {
-			var c mat.Condition
-			if !errors.As(err, &c) {
-				return lsq{}, inputErr("points", "least-squares solve failed: %v", err)
-			}
-		}
-		for j := 0; j < p; j++ {
-			out.beta[j] += sol.At(j, 0) * scale[j]
-		}
-	}
-	for j := 0; j < p; j++ {
-		for k := 0; k < p; k++ {
-			var s float64
-			for l := max(j, k); l < p; l++ {
-				s += rinv[j][l] * rinv[k][l]
-			}
-			out.xtwx[j*p+k] = s * scale[j] * scale[k]
-		}
-	}
-	var sumw, swy float64
-	for i := range x {
-		e := residualDD(model, out.beta, x[i], y[i])
-		out.fitted[i] = y[i] - e
-		out.resid[i] = e
-		out.ssr += w[i] * e * e
-		sumw += w[i]
-		swy += w[i] * y[i]
-		var h float64
-		for k := 0; k < p; k++ {
-			var s float64
-			for j := 0; j <= k; j++ {
-				s += data[i*p+j] * rinv[j][k]
-			}
-			h += s * s
-		}
-		out.lev[i] = h
-	}
-	out.s = math.Sqrt(out.ssr / float64(out.df))
-	var tss float64
-	if model == LinearOrigin {
-		for i := range y {
-			tss += w[i] * y[i] * y[i]
-		}
-	} else {
-		my := swy / sumw
-		for i := range y {
-			tss += w[i] * (y[i] - my) * (y[i] - my)
-		}
-	}
-	if !(tss > 0) || math.IsInf(tss, 0) || math.IsInf(out.ssr, 0) || math.IsNaN(out.ssr) {
-		return lsq{}, inputErr("points", "the responses cannot be fitted (no spread, or outside the numerically usable range)")
-	}
-	out.r2 = 1 - out.ssr/tss
-	return out, nil
-}
-
-// residualDD returns y − Σβⱼvⱼ(x) accumulated in double-double arithmetic
-// (products split exactly with FMA, sums with TwoSum), so that the residual
-// of a near-exact fit keeps its digits.
-func residualDD(model Model, beta []float64, x, y float64) float64 {
-	hi, lo := y, 0.0
-	sub := func(b, v float64) {
-		p := b * v
-		pe := math.FMA(b, v, -p) // b·v = p + pe exactly
-		s := hi - p
-		bb := s - hi
-		e := (hi - (s - bb)) + (-p - bb) // TwoSum(hi, −p) error
-		hi = s
-		lo += e - pe
-	}
-	switch model {
-	case LinearOrigin:
-		sub(beta[0], x)
-	case Quadratic:
-		x2 := x * x
-		x2e := math.FMA(x, x, -x2) // x² = x2 + x2e exactly
-		sub(beta[0], 1)
-		sub(beta[1], x)
-		sub(beta[2], x2)
-		sub(beta[2], x2e)
-	default:
-		sub(beta[0], 1)
-		sub(beta[1], x)
-	}
-	return hi + lo
 }
 
 // fitAuto fits every candidate scheme and keeps the one with the smallest

@@ -3,6 +3,7 @@ package calib
 import (
 	"math"
 	"strconv"
+	"sync"
 )
 
 // cautions are carried by every Report and every Prediction.
@@ -27,7 +28,7 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	ratio := raw[0] / planRaw[0] // raw and planRaw may be the same slice
 	w := raw
 	wscale := normalise(w) * ratio
-	f, err := solveLSQ(opt.Model, d.x, d.y, w)
+	des, f, err := fitDesign(opt.Model, d, w)
 	if err != nil {
 		return nil, err
 	}
@@ -102,12 +103,40 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		}
 	}
 	r.Limits = computeLimits(r, f)
-	r.Checks = computeChecks(r, d, f, w, opt.Policy)
+	r.Checks = computeChecks(r, d, des, f, w, opt.Policy)
 	r.Verdict = verdict(r.Checks)
 	if !r.finite() {
 		return nil, inputErr("points", "values are outside the numerically usable range")
 	}
 	return r, nil
+}
+
+// fitDesign factorises once for the model and, where the data allow, the
+// line and the quadratic that Mandel's test and the intercept test compare
+// (columns [1, x, x²], or [x, 1, x²] for the origin model), and fits the
+// model from it. If the extra columns are not usable (x² overflows), the
+// model's own columns are factorised and those checks are not computed.
+func fitDesign(m Model, d *dataset, w []float64) (*design, lsq, error) {
+	n, k := len(d.x), len(d.levels)
+	ext := powers(m)
+	switch {
+	case m == Quadratic:
+	case n >= 4 && k >= 3 && m == Linear:
+		ext = []int{0, 1, 2}
+	case n >= 4 && k >= 3:
+		ext = []int{1, 0, 2}
+	case n >= 3 && m == LinearOrigin:
+		ext = []int{1, 0}
+	}
+	des, err := newDesign(ext, d.x, d.y, w)
+	if err != nil && len(ext) > nParams(m) {
+		des, err = newDesign(powers(m), d.x, d.y, w)
+	}
+	if err != nil {
+		return nil, lsq{}, err
+	}
+	f, err := des.fit(m)
+	return des, f, err
 }
 
 // backCalc reads a point's concentration back from the curve and sets its
@@ -279,12 +308,45 @@ func fmtG(v float64) string {
 	return strconv.FormatFloat(v, 'g', 6, 64)
 }
 
-// fmtG10 formats v with ten significant digits.
-func fmtG10(v float64) string {
-	return strconv.FormatFloat(v, 'g', 10, 64)
-}
-
 // itoa formats an integer for Detail texts.
 func itoa(i int) string {
 	return strconv.Itoa(i)
 }
+
+// text builds Detail texts with one allocation for the finished string
+// rather than one per number and per concatenation.
+type text struct{ b []byte }
+
+// textPool recycles text buffers across checks and fits.
+var textPool = sync.Pool{New: func() any { return &text{b: make([]byte, 0, 512)} }}
+
+// newText returns an empty text from the pool; free returns it.
+func newText() *text {
+	t := textPool.Get().(*text)
+	t.b = t.b[:0]
+	return t
+}
+
+func (t *text) free() { textPool.Put(t) }
+
+func (t *text) s(v string) *text { t.b = append(t.b, v...); return t }
+
+// g appends v with six significant digits.
+func (t *text) g(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 6, 64); return t }
+
+// g10 appends v with ten significant digits.
+func (t *text) g10(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 10, 64); return t }
+
+func (t *text) i(v int) *text { t.b = strconv.AppendInt(t.b, int64(v), 10); return t }
+
+// point names a reading for QA staff: its level label, index and x.
+func (t *text) point(p *PointResult, i int) *text {
+	if p.Level != "" {
+		return t.s(p.Level).s(" (reading ").i(i).s(", x = ").g(p.X).s(")")
+	}
+	return t.s("reading ").i(i).s(" (x = ").g(p.X).s(")")
+}
+
+func (t *text) len() int { return len(t.b) }
+
+func (t *text) str() string { return string(t.b) }

@@ -57,11 +57,22 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	lockWait := fs.String("migrate-lock-timeout", env("CURVEKEEPER_MIGRATE_LOCK_TIMEOUT", "30s"), "longest wait for the migration lock (CURVEKEEPER_MIGRATE_LOCK_TIMEOUT)")
 	fs.StringVar(&cfg.LogLevel, "log-level", env("CURVEKEEPER_LOG_LEVEL", "info"), "debug, info, warn or error (CURVEKEEPER_LOG_LEVEL)")
 	cfg.BootstrapToken = getenv("CURVEKEEPER_BOOTSTRAP_TOKEN")
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return cfg, nil, err
+	// Flags may come before or after positional arguments ("migrate down 1
+	// --database-url …"): the flag package stops at the first positional one,
+	// so parse on after each.
+	var positional []string
+	for {
+		if err := fs.Parse(args); err != nil {
+			if errors.Is(err, flag.ErrHelp) {
+				return cfg, nil, err
+			}
+			return cfg, nil, &usageError{err.Error()}
 		}
-		return cfg, nil, &usageError{err.Error()}
+		if fs.NArg() == 0 {
+			break
+		}
+		positional = append(positional, fs.Arg(0))
+		args = fs.Args()[1:]
 	}
 	var err error
 	if cfg.BodyLimit, err = strconv.ParseInt(*bodyLimit, 10, 64); err != nil || cfg.BodyLimit < 1024 {
@@ -88,5 +99,5 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	default:
 		return cfg, nil, &usageError{fmt.Sprintf("--log-level %q: want debug, info, warn or error", cfg.LogLevel)}
 	}
-	return cfg, fs.Args(), nil
+	return cfg, positional, nil
 }

@@ -32,7 +32,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, std
 	defer dbase.close(log)
 	db, err := store.Open(ctx, dbase.url)
 	if err != nil {
-		return fmt.Errorf("cannot reach the database (%s): %v", redactURL(dbase.url), err)
+		return fmt.Errorf("cannot reach the database (%s): %s", redactURL(dbase.url), oneLine(err))
 	}
 	defer db.Close()
 	if err := store.MigrateUp(ctx, dbase.url, cfg.MigrateLockWait); err != nil {

@@ -45,7 +45,7 @@ func run(ctx context.Context, args []string, getenv func(string) string, stdout,
 
 const usageText = `usage:
   curvekeeper [serve] [flags]                 serve the HTTP API (default)
-  curvekeeper migrate up|down [N]|version     manage the database schema
+  curvekeeper migrate up|down [N]|force V|version     manage the database schema
   curvekeeper demo [flags]                    load the invented demo scenario, print tokens
   curvekeeper help                            this text
 Run "curvekeeper serve -h" for the flags.
@@ -122,7 +122,7 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 	defer cancel()
 	db, err := store.Open(connectCtx, dbase.url)
 	if err != nil {
-		return fmt.Errorf("cannot reach the database (%s): %v", redactURL(dbase.url), errors.Unwrap(err))
+		return fmt.Errorf("cannot reach the database (%s): %s", redactURL(dbase.url), oneLine(errors.Unwrap(err)))
 	}
 	defer db.Close()
 	if err := store.MigrateUp(ctx, dbase.url, cfg.MigrateLockWait); err != nil {
@@ -171,6 +171,24 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 	}
 	fmt.Fprintln(stdout, "curvekeeper: stopped")
 	return nil
+}
+
+// oneLine folds a multi-line error (pgconn lists each address tried on its
+// own line) into one line, dropping repeated parts.
+func oneLine(err error) string {
+	if err == nil {
+		return ""
+	}
+	var parts []string
+	seen := map[string]bool{}
+	for _, p := range strings.Split(err.Error(), "\n") {
+		p = strings.TrimSpace(p)
+		if p != "" && !seen[p] {
+			seen[p] = true
+			parts = append(parts, p)
+		}
+	}
+	return strings.Join(parts, " ")
 }
 
 // redactURL hides a password in a database URL.

@@ -1,0 +1,73 @@
+package main
+
+import (
+	"context"
+	"io"
+	"strings"
+	"testing"
+
+	"curvekeeper/store"
+	"curvekeeper/store/dbtest"
+)
+
+// TestDemo loads the invented scenario twice: the first load stores every
+// run with the failures the scenario promises; the second stores nothing new.
+func TestDemo(t *testing.T) {
+	url := dbtest.NewURL(t)
+	var out strings.Builder
+	ctx := context.Background()
+	if err := run(ctx, []string{"demo", "--database-url", url}, func(string) string { return "" }, &out, io.Discard); err != nil {
+		t.Fatalf("demo: %v", err)
+	}
+	if !strings.Contains(out.String(), "Loaded 30 runs") || !strings.Contains(out.String(), "export QA=ck_") {
+		t.Fatalf("demo output lacks the load summary or the tokens:\n%s", out.String())
+	}
+	db, err := store.Open(ctx, url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+
+	count := func(sql string, args ...any) int {
+		t.Helper()
+		var n int
+		if err := db.Pool.QueryRow(ctx, sql, args...).Scan(&n); err != nil {
+			t.Fatalf("%s: %v", sql, err)
+		}
+		return n
+	}
+	if n := count(`SELECT count(*) FROM runs`); n != 30 {
+		t.Errorf("runs = %d, want 30", n)
+	}
+	// The saturating nitrate run fails linearity; the mis-pipetted arsenic run fails too.
+	if n := count(`SELECT count(*) FROM curves WHERE analyte = 'NO3-N' AND verdict = 'fail' AND 'mandel' = ANY(failed_checks)`); n < 1 {
+		t.Errorf("no nitrate curve fails Mandel's test")
+	}
+	if n := count(`SELECT count(*) FROM curves WHERE analyte = 'As' AND verdict = 'fail'`); n < 1 {
+		t.Errorf("no arsenic curve fails")
+	}
+	// The ICP-MS loses sensitivity: the last lead slope is well below the first.
+	var first, last float64
+	if err := db.Pool.QueryRow(ctx, `SELECT
+		(SELECT slope FROM curves WHERE analyte = 'Pb' ORDER BY acquired_at LIMIT 1),
+		(SELECT slope FROM curves WHERE analyte = 'Pb' ORDER BY acquired_at DESC LIMIT 1)`).Scan(&first, &last); err != nil {
+		t.Fatal(err)
+	}
+	if last > 0.95*first {
+		t.Errorf("Pb slope fell from %.1f to %.1f; the scenario promises a loss of more than 5 %%", first, last)
+	}
+	if n := count(`SELECT count(*) FROM curves WHERE status = 'approved'`); n == 0 {
+		t.Errorf("no curve was approved by the demo's QA round")
+	}
+
+	out.Reset()
+	if err := run(ctx, []string{"demo", "--database-url", url}, func(string) string { return "" }, &out, io.Discard); err != nil {
+		t.Fatalf("second demo: %v", err)
+	}
+	if !strings.Contains(out.String(), "loaded before") {
+		t.Errorf("second load did not say the runs were there:\n%s", out.String())
+	}
+	if n := count(`SELECT count(*) FROM runs`); n != 30 {
+		t.Errorf("runs after a second load = %d, want 30", n)
+	}
+}
