@@ -113,3 +113,32 @@ LIMIT $4`, instrument, analyte, before, limit)
 	slices.Reverse(vals)
 	return vals, nil
 }
+
+// TrendSubject is one instrument and analyte that has curves.
+type TrendSubject struct {
+	Instrument string
+	Analyte    string
+	Curves     int
+	Last       time.Time
+}
+
+// TrendSubjects lists every instrument and analyte with curves (at most
+// 500), for choosing a trend. It reads the whole history index, so it is for
+// the QA pages, not for hot paths.
+func (db *DB) TrendSubjects(ctx context.Context) ([]TrendSubject, error) {
+	rows, err := db.Pool.Query(ctx, `
+SELECT instrument, analyte, count(*), max(acquired_at) FROM curves
+GROUP BY instrument, analyte ORDER BY instrument, analyte LIMIT 500`)
+	if err != nil {
+		return nil, classify("trend subjects", err)
+	}
+	out, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (TrendSubject, error) {
+		var s TrendSubject
+		err := row.Scan(&s.Instrument, &s.Analyte, &s.Curves, &s.Last)
+		return s, err
+	})
+	if err != nil {
+		return nil, classify("scan trend subjects", err)
+	}
+	return out, nil
+}
