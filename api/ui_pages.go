@@ -3,6 +3,7 @@ package api
 import (
 	"bytes"
 	"embed"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"html/template"
@@ -10,6 +11,7 @@ import (
 	"math"
 	"net/http"
 	"net/url"
+	"sort"
 	"strconv"
 	"strings"
 	"time"
@@ -242,9 +244,41 @@ type curveView struct {
 }
 
 type auditRow struct {
-	At            time.Time
-	Actor, Action string
-	Detail        string
+	At             time.Time
+	Who, TokenID   string // the actor: a token's name and id, or the raw actor
+	Action, Entity string
+	Pairs          []auditPair
+}
+
+type auditPair struct{ K, V string }
+
+// auditRowOf renders an audit event for people: the actor's token name, the
+// entity, and the recorded facts one per line, keys sorted.
+func auditRowOf(e store.AuditEvent) auditRow {
+	r := auditRow{At: e.At, Who: e.Actor, Action: e.Action, Entity: e.EntityType + " " + e.EntityID}
+	if parts := strings.SplitN(e.Actor, ":", 3); len(parts) == 3 && parts[0] == "token" {
+		r.Who, r.TokenID = parts[1], parts[2]
+	}
+	var facts map[string]any
+	if json.Unmarshal(e.Detail, &facts) == nil {
+		keys := make([]string, 0, len(facts))
+		for k := range facts {
+			keys = append(keys, k)
+		}
+		sort.Strings(keys)
+		for _, k := range keys {
+			var v string
+			switch x := facts[k].(type) {
+			case string:
+				v = x
+			default:
+				b, _ := json.Marshal(x)
+				v = string(b)
+			}
+			r.Pairs = append(r.Pairs, auditPair{K: k, V: v})
+		}
+	}
+	return r
 }
 
 type checkRow struct {
@@ -288,7 +322,7 @@ func (s *Server) curveView(c echo.Context, id string) (*curveView, error) {
 			return nil, err
 		}
 		for _, e := range events {
-			v.Audit = append(v.Audit, auditRow{At: e.At, Actor: e.Actor, Action: e.Action, Detail: auditText(e)})
+			v.Audit = append(v.Audit, auditRowOf(e))
 		}
 	}
 	return v, nil

@@ -307,7 +307,7 @@ func DriftCheck(parameter string, history []float64, value float64) Check {
 	}
 	c.Computed, c.Statistic, c.Limit = true, b.Z(value), 3
 	c.Passed = len(rejects) == 0
-	head := "The " + parameter + " " + fmtG(value) + " is " + fmtG(c.Statistic) + " SD from the mean " + fmtG(b.Mean) +
+	head := "The " + parameter + " " + fmtG(value) + " is " + strings.Replace(strconv.FormatFloat(c.Statistic, 'f', 2, 64), "-", "−", 1) + " SD from the mean " + fmtG(b.Mean) +
 		" (SD " + fmtG(b.SD) + ") of the " + itoa(b.N) + " earlier approved curves"
 	switch {
 	case !c.Passed:
