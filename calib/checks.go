@@ -1,11 +1,6 @@
 package calib
 
-import (
-	"cmp"
-	"math"
-	"slices"
-	"sync"
-)
+import "math"
 
 // mandatoryNote ends the Detail of a mandatory check that could not be
 // computed.
@@ -47,7 +42,11 @@ func checkSource(name string, m Model) string {
 // computeChecks evaluates every check of the policy on the fit f of the
 // dataset d with normalised weights w.
 func computeChecks(r *Report, d *dataset, des *design, f lsq, w []float64, pol Policy) []Check {
-	nz := make([]float64, 0, len(d.levels))
+	var nzBuf [64]float64
+	nz := nzBuf[:0]
+	if len(d.levels) > len(nzBuf) {
+		nz = make([]float64, 0, len(d.levels))
+	}
 	for _, lv := range d.levels {
 		nz = append(nz, lv.x)
 	}
@@ -115,20 +114,20 @@ func mandelCheck(r *Report, d *dataset, des *design, f lsq, pol Policy) Check {
 	if des.k < 3 {
 		return notComputed(CheckMandel, "the quadratic term x² is outside the numerically usable range")
 	}
-	line, quad := f, f
+	lineSSR, quadSSR := f.ssr, f.ssr
 	var err error
 	if r.Model != Linear {
-		if line, err = des.fit(Linear); err != nil {
+		if lineSSR, err = des.fitSSR(Linear); err != nil {
 			return notComputed(CheckMandel, "the line could not be fitted: "+err.Error())
 		}
 	}
 	if r.Model != Quadratic {
-		if quad, err = des.fit(Quadratic); err != nil {
+		if quadSSR, err = des.fitSSR(Quadratic); err != nil {
 			return notComputed(CheckMandel, "the quadratic could not be fitted: "+err.Error())
 		}
 	}
-	ds2 := math.Max(line.ssr-quad.ssr, 0) // (N−2)s1² − (N−3)s2²
-	s22 := quad.ssr / float64(n-3)
+	ds2 := max(lineSSR-quadSSR, 0) // (N−2)s1² − (N−3)s2²
+	s22 := quadSSR / float64(n-3)
 	if !(s22 > 0) {
 		return notComputed(CheckMandel, "the quadratic fits the readings exactly, so the test statistic is undefined")
 	}
@@ -144,7 +143,7 @@ func mandelCheck(r *Report, d *dataset, des *design, f lsq, pol Policy) Check {
 	} else {
 		t.s(" ≤ ")
 	}
-	t.s("F(").g(1 - pol.MandelAlpha).s("; 1, ").i(n - 3).s(") = ").g(fc)
+	t.s("F(").gc(1 - pol.MandelAlpha).s("; 1, ").i(n - 3).s(") = ").gc(fc)
 	switch {
 	case r.Model == Quadratic && better:
 		t.s(": the quadratic fits significantly better than a line, so the quadratic model is justified.")
@@ -190,7 +189,7 @@ func lackOfFitCheck(d *dataset, f lsq, w []float64, pol Policy) Check {
 	if !(sspe > 0) {
 		return notComputed(CheckLackOfFit, "the replicates are identical (pure error 0), so the F ratio is undefined")
 	}
-	sslof := math.Max(f.ssr-sspe, 0)
+	sslof := max(f.ssr-sspe, 0)
 	fs := (sslof / float64(k-p)) / (sspe / float64(n-k))
 	fc := fQuantile(1-pol.LackOfFitAlpha, k-p, n-k)
 	c := Check{Name: CheckLackOfFit, Statistic: fs, Limit: fc, Computed: true, Passed: fs <= fc}
@@ -202,7 +201,7 @@ func lackOfFitCheck(d *dataset, f lsq, w []float64, pol Policy) Check {
 	} else {
 		t.s(" > ")
 	}
-	t.s("F(").g(1 - pol.LackOfFitAlpha).s("; ").i(k - p).s(", ").i(n - k).s(") = ").g(fc)
+	t.s("F(").gc(1 - pol.LackOfFitAlpha).s("; ").i(k - p).s(", ").i(n - k).s(") = ").gc(fc)
 	if c.Passed {
 		t.s(": the scatter of the level means about the curve is consistent with the scatter of the replicates.")
 	} else {
@@ -239,7 +238,7 @@ func homoscedasticityCheck(r *Report, d *dataset, pol Policy) Check {
 	} else {
 		t.s(" > ")
 	}
-	t.s("F(").g(1 - pol.HomoscedasticityAlpha).s("; ").i(dn).s(", ").i(dd).s(") = ").g(fc)
+	t.s("F(").gc(1 - pol.HomoscedasticityAlpha).s("; ").i(dn).s(", ").i(dd).s(") = ").gc(fc)
 	switch {
 	case c.Passed:
 		t.s(": the response variance at the lowest and highest standard does not differ significantly.")
@@ -266,8 +265,13 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 			break
 		}
 	}
-	total, pass := 0, 0
-	levelsOK := make(map[float64]bool)
+	total, pass, levelsOK := 0, 0, 0
+	// passed marks the levels (by index in d.levels) with a passing standard.
+	var passBuf [64]bool
+	passed := passBuf[:]
+	if len(d.levels) > len(passBuf) {
+		passed = make([]bool, len(d.levels))
+	}
 	t, bad := newText(), newText()
 	defer t.free()
 	defer bad.free()
@@ -284,7 +288,10 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 		}
 		if p.HasRelativeError && math.Abs(p.RelativeErrorPct) <= tol {
 			pass++
-			levelsOK[p.X] = true
+			if l := d.levelOf(p.X); !passed[l] {
+				passed[l] = true
+				levelsOK++
+			}
 			continue
 		}
 		if nbad++; nbad <= 10 {
@@ -304,10 +311,10 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 	}
 	frac := float64(pass) / float64(total)
 	c := Check{Name: CheckBackCalculation, Statistic: frac, Limit: pol.BackCalcMinPassFraction, Computed: true,
-		Passed: frac >= pol.BackCalcMinPassFraction && len(levelsOK) >= pol.MinLevels}
-	t.i(pass).s(" of ").i(total).s(" standards read back within ±").g(pol.BackCalcTolerancePct).
-		s(" % of nominal (±").g(pol.BackCalcLowTolerancePct).s(" % at the lowest level), covering ").i(len(levelsOK)).
-		s(" level(s); required: a fraction of ").g(pol.BackCalcMinPassFraction).s(" and ").i(pol.MinLevels).s(" levels.")
+		Passed: frac >= pol.BackCalcMinPassFraction && levelsOK >= pol.MinLevels}
+	t.i(pass).s(" of ").i(total).s(" standards read back within ±").gc(pol.BackCalcTolerancePct).
+		s(" % of nominal (±").gc(pol.BackCalcLowTolerancePct).s(" % at the lowest level), covering ").i(levelsOK).
+		s(" level(s); required: a fraction of ").gc(pol.BackCalcMinPassFraction).s(" and ").i(pol.MinLevels).s(" levels.")
 	if bad.len() > 0 {
 		t.s(" Outside tolerance: ").s(bad.str()).s(".")
 	}
@@ -333,7 +340,7 @@ func rSquaredCheck(r *Report, pol Policy) Check {
 	} else {
 		t.g(r.RSquared)
 	}
-	t.s(" against a minimum of ").g(pol.MinRSquared)
+	t.s(" against a minimum of ").gc(pol.MinRSquared)
 	switch {
 	case r.Model == LinearOrigin:
 		t.s(" (uncentred R² of the origin model, which is larger than a centred one)")
@@ -371,7 +378,7 @@ func rseCheck(r *Report, d *dataset, pol Policy) Check {
 	t := newText()
 	defer t.free()
 	c.Detail = t.s("RSE = ").g(rse).s(" % over ").i(n).s(" standards (n − p = ").i(n - p).
-		s(") against a maximum of ").g(pol.MaxRSEPct).s(" %.").str()
+		s(") against a maximum of ").gc(pol.MaxRSEPct).s(" %.").str()
 	return c
 }
 
@@ -412,7 +419,7 @@ func interceptCheck(r *Report, des *design, f lsq, pol Policy) Check {
 	} else {
 		t.s(", |t| > ")
 	}
-	t.s("t(").g(1 - pol.InterceptAlpha/2).s("; ").i(df).s(") = ").g(tc)
+	t.s("t(").gc(1 - pol.InterceptAlpha/2).s("; ").i(df).s(") = ").gc(tc)
 	switch {
 	case c.Passed:
 		t.s(": the intercept does not differ significantly from zero.")
@@ -420,193 +427,6 @@ func interceptCheck(r *Report, des *design, f lsq, pol Policy) Check {
 		t.s(": the intercept differs significantly from zero, so forcing the curve through the origin is not justified.")
 	default:
 		t.s(": the intercept differs significantly from zero (blank contribution or matrix effect); review the blank.")
-	}
-	c.Detail = t.str()
-	return c
-}
-
-// runsCheck: Wald–Wolfowitz runs test on the residual signs of the fitted
-// readings sorted by concentration (replicates by response, so the order
-// does not depend on input order); zero residuals are dropped. Few runs
-// indicate curvature, so the test is one-sided: P(R ≤ r_obs) from the exact
-// distribution against RunsAlpha. Limit is the largest significant number
-// of runs (0 when none is: too few residuals of a sign).
-func runsCheck(r *Report, d *dataset, f lsq, pol Policy) Check {
-	order := make([]int, len(d.x))
-	for i := range order {
-		order[i] = i
-	}
-	slices.SortFunc(order, func(a, b int) int {
-		if c := cmp.Compare(d.x[a], d.x[b]); c != 0 {
-			return c
-		}
-		return cmp.Compare(d.y[a], d.y[b])
-	})
-	scale := 0.0
-	for _, y := range d.y {
-		scale = math.Max(scale, math.Abs(y))
-	}
-	n1, n2, runs, last := 0, 0, 0, 0
-	for _, i := range order {
-		e := f.resid[i]
-		if math.Abs(e) <= 1e-13*scale {
-			continue
-		}
-		sg := 1
-		if e < 0 {
-			sg = -1
-		}
-		if sg > 0 {
-			n1++
-		} else {
-			n2++
-		}
-		if sg != last {
-			runs++
-			last = sg
-		}
-	}
-	if n1 == 0 || n2 == 0 {
-		return notComputed(CheckResidualRuns, "every non-zero residual has the same sign, so the runs test is undefined (this itself points to a biased curve)")
-	}
-	dist := runsDist(n1, n2)
-	pv, cum, crit := 0.0, 0.0, 0
-	for k := 2; k < len(dist); k++ {
-		cum += dist[k]
-		if k == runs {
-			pv = math.Min(cum, 1)
-		}
-		if cum <= pol.RunsAlpha {
-			crit = k
-		}
-	}
-	c := Check{Name: CheckResidualRuns, Statistic: float64(runs), Limit: float64(crit), Computed: true, Passed: pv > pol.RunsAlpha}
-	t := newText()
-	defer t.free()
-	t.i(runs).s(" runs of residual signs (").i(n1).s(" positive, ").i(n2).s(" negative), P(R ≤ ").i(runs).s(") = ").g(pv)
-	if c.Passed {
-		t.s(" > ").g(pol.RunsAlpha).s(": no sign of systematic curvature.")
-	} else {
-		t.s(" ≤ ").g(pol.RunsAlpha).s(": too few runs, the residuals follow a pattern (curvature or a wrong model).")
-	}
-	if crit == 0 {
-		t.s(" With so few residuals of each sign no run count is significant; the test has no power here.")
-	}
-	c.Detail = t.str()
-	return c
-}
-
-// runsDist returns P(R = r) for r = 0..n1+n2, the exact distribution of
-// the number of runs R in a random sequence of n1 and n2 signs (Wald &
-// Wolfowitz 1940): P(R = 2h) = 2·C(n1−1, h−1)·C(n2−1, h−1)/C(n1+n2, n1),
-// P(R = 2h+1) = [C(n1−1, h)·C(n2−1, h−1) + C(n1−1, h−1)·C(n2−1, h)]/C(n1+n2, n1).
-// Binomials come from log-gamma, so large runs do not overflow.
-func runsDist(n1, n2 int) []float64 {
-	if n1+n2 <= maxCachedRuns {
-		if v, ok := runsCache.Load([2]int{n1, n2}); ok {
-			return v.([]float64)
-		}
-	}
-	p := computeRunsDist(n1, n2)
-	if n1+n2 <= maxCachedRuns {
-		runsCache.Store([2]int{n1, n2}, p)
-	}
-	return p
-}
-
-// runsCache holds runsDist by (n1, n2) for runs of up to maxCachedRuns
-// readings (at most 200² small entries); the same splits recur run after
-// run. Callers must not modify the returned slice.
-var runsCache sync.Map
-
-const maxCachedRuns = 200
-
-func computeRunsDist(n1, n2 int) []float64 {
-	n := n1 + n2
-	lt := lchoose(n, n1)
-	a := make([]float64, n1+1) // log C(n1−1, h)
-	b := make([]float64, n2+1) // log C(n2−1, h)
-	for h := range a {
-		a[h] = lchoose(n1-1, h)
-	}
-	for h := range b {
-		b[h] = lchoose(n2-1, h)
-	}
-	at := func(v []float64, h int) float64 {
-		if h < 0 || h >= len(v) {
-			return math.Inf(-1)
-		}
-		return v[h]
-	}
-	p := make([]float64, n+1)
-	for r := 2; r <= n; r++ {
-		h := r / 2
-		if r%2 == 0 {
-			p[r] = 2 * math.Exp(at(a, h-1)+at(b, h-1)-lt)
-		} else {
-			p[r] = math.Exp(at(a, h)+at(b, h-1)-lt) + math.Exp(at(a, h-1)+at(b, h)-lt)
-		}
-	}
-	return p
-}
-
-// runsCDF returns P(R ≤ r) (see runsDist).
-func runsCDF(r, n1, n2 int) float64 {
-	p := runsDist(n1, n2)
-	var c float64
-	for k := 2; k <= r && k < len(p); k++ {
-		c += p[k]
-	}
-	return math.Min(c, 1)
-}
-
-// lchoose returns log C(n, k), −Inf when k < 0 or k > n.
-func lchoose(n, k int) float64 {
-	if k < 0 || k > n || n < 0 {
-		return math.Inf(-1)
-	}
-	a, _ := math.Lgamma(float64(n + 1))
-	b, _ := math.Lgamma(float64(k + 1))
-	c, _ := math.Lgamma(float64(n - k + 1))
-	return a - b - c
-}
-
-// outlierCheck: every fitted reading must have |internally studentised
-// residual| ≤ OutlierStudentized and Cook's distance ≤ OutlierCooksD
-// (common practice). Statistic is the largest |studentised residual|.
-func outlierCheck(r *Report, d *dataset, pol Policy) Check {
-	maxR, maxD := 0.0, 0.0
-	bad := newText()
-	defer bad.free()
-	nbad, lev1 := 0, 0
-	for _, i := range d.idx {
-		p := &r.Points[i]
-		if 1-p.Leverage <= 1e-10 {
-			lev1++
-		}
-		a := math.Abs(p.Studentized)
-		maxR = math.Max(maxR, a)
-		maxD = math.Max(maxD, p.CooksDistance)
-		if a > pol.OutlierStudentized || p.CooksDistance > pol.OutlierCooksD {
-			if nbad++; nbad <= 10 {
-				if nbad > 1 {
-					bad.s("; ")
-				}
-				bad.point(p, i).s(": studentised ").g(p.Studentized).s(", Cook's D ").g(p.CooksDistance)
-			}
-		}
-	}
-	c := Check{Name: CheckOutliers, Statistic: maxR, Limit: pol.OutlierStudentized, Computed: true,
-		Passed: maxR <= pol.OutlierStudentized && maxD <= pol.OutlierCooksD}
-	t := newText()
-	defer t.free()
-	t.s("Largest |studentised residual| ").g(maxR).s(" (limit ").g(pol.OutlierStudentized).
-		s("), largest Cook's distance ").g(maxD).s(" (limit ").g(pol.OutlierCooksD).s(").")
-	if nbad > 0 {
-		t.s(" Flagged: ").s(bad.str()).s(".")
-	}
-	if lev1 > 0 {
-		t.s(" ").i(lev1).s(" reading(s) have leverage 1 (the curve passes through them), so their residuals cannot be studentised.")
 	}
 	c.Detail = t.str()
 	return c

@@ -48,7 +48,7 @@ func computeLimits(r *Report, f lsq) Limits {
 		t.s(" (the quadratic's sensitivity b1 + 2·b2·x at the lowest standard x = ").g(r.Range.Low).s(")")
 	}
 	t.s(". Critical value y_c, x_c and minimum detectable x_d ≈ 2·x_c by ISO 11843-2 for one reading of the unknown, α = β = 0.05, t(0.95; ").
-		i(r.DF).s(") = ").g(tq).s(", assuming a constant response SD")
+		i(r.DF).s(") = ").gc(tq).s(", assuming a constant response SD")
 	if r.Weighting != WeightNone {
 		t.s("; with ").s(string(r.Weighting)).s(" weighting σ is the SD of a reading of unit weight on the Σw = n scale, so these limits are approximations")
 	}
