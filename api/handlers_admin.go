@@ -16,11 +16,12 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 	p := mustPrincipal(ctx)
 	b := req.Body
 	in := store.MethodInput{
-		Name:       string(b.Name),
-		Model:      calib.Model(b.Model),
-		Weighting:  calib.Weighting(b.Weighting),
-		Confidence: 0.95,
-		Acceptance: policyFrom(b.Acceptance),
+		Name:        string(b.Name),
+		Model:       calib.Model(b.Model),
+		Weighting:   calib.Weighting(b.Weighting),
+		Confidence:  0.95,
+		Acceptance:  policyFrom(b.Acceptance),
+		Description: deref(b.Description),
 	}
 	if b.Confidence != nil {
 		in.Confidence = float64(*b.Confidence)
@@ -122,14 +123,15 @@ func methodOut(m *store.Method) oapi.Method {
 		mandatory = append(mandatory, oapi.CheckName(c))
 	}
 	out := oapi.Method{
-		Name:       m.Name,
-		Revision:   m.Revision,
-		Model:      oapi.Model(m.Model),
-		Weighting:  oapi.Weighting(m.Weighting),
-		Confidence: m.Confidence,
-		CreatedAt:  m.CreatedAt,
-		CreatedBy:  m.CreatedBy,
-		Analytes:   make([]oapi.Analyte, 0, len(m.Analytes)),
+		Name:        m.Name,
+		Revision:    m.Revision,
+		Model:       oapi.Model(m.Model),
+		Weighting:   oapi.Weighting(m.Weighting),
+		Confidence:  m.Confidence,
+		CreatedAt:   m.CreatedAt,
+		CreatedBy:   m.CreatedBy,
+		Description: m.Description,
+		Analytes:    make([]oapi.Analyte, 0, len(m.Analytes)),
 		Acceptance: oapi.AcceptancePolicy{
 			BackCalcLowTolerancePct: pol.BackCalcLowTolerancePct,
 			BackCalcMinPassFraction: pol.BackCalcMinPassFraction,

@@ -73,3 +73,26 @@ func TestMethodsRevisions(t *testing.T) {
 		t.Errorf("curve fitted with revision %d (%s), want 2 (1/x^2)", curve.MethodRevision, curve.WeightingRequested)
 	}
 }
+
+// TestMethodDescriptionKept: the administrator's description is stored, read
+// back, and changing it makes a new revision.
+func TestMethodDescriptionKept(t *testing.T) {
+	t.Parallel()
+	e := newEnv(t)
+	body := map[string]any{"name": "sulfate-ic", "model": "linear", "weighting": "none",
+		"description": "Sulfate by ion chromatography (invented method)",
+		"analytes":    []map[string]any{{"name": "sulfate", "unit": "mg/L"}}}
+	m1 := decode[oapi.Method](t, e.postJSON(t, e.admin, "/v1/methods", body), http.StatusCreated)
+	if m1.Description != body["description"] {
+		t.Errorf("description %q, want %q", m1.Description, body["description"])
+	}
+	got := decode[oapi.Method](t, e.get(t, e.admin, "/v1/methods/sulfate-ic"), http.StatusOK)
+	if got.Description != body["description"] {
+		t.Errorf("read back description %q", got.Description)
+	}
+	body["description"] = "Sulfate by ion chromatography, new column (invented method)"
+	m2 := decode[oapi.Method](t, e.postJSON(t, e.admin, "/v1/methods", body), http.StatusCreated)
+	if m2.Revision != 2 || m2.Description != body["description"] {
+		t.Errorf("changed description: %+v, want revision 2 with the new text", m2)
+	}
+}

@@ -571,7 +571,10 @@ func TestClosedPoolDoesNotLeak(t *testing.T) {
 	e.db.Close()
 	r := e.get(t, e.admin, "/v1/methods")
 	p := wantProblemAtLeast(t, r, 500)
-	if p.Detail != "internal error" && p.Detail != "the database cannot be reached; retry later" {
+	if r.status != 503 || r.header.Get("Retry-After") == "" {
+		t.Errorf("a closed pool (shutdown) answers %d, Retry-After %q; want 503 with Retry-After", r.status, r.header.Get("Retry-After"))
+	}
+	if p.Detail != "the database cannot be reached; retry later" {
 		t.Errorf("detail %q says more than the contract allows", p.Detail)
 	}
 	for _, leak := range []string{"closed", "pool", "store:", "pgx"} {

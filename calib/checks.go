@@ -272,9 +272,12 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 	if len(d.levels) > len(passBuf) {
 		passed = make([]bool, len(d.levels))
 	}
-	t, bad := newText(), newText()
-	defer t.free()
-	defer bad.free()
+	var bad *text // the standards outside tolerance, taken from the pool when there is one
+	defer func() {
+		if bad != nil {
+			bad.free()
+		}
+	}()
 	nbad := 0
 	for _, i := range d.idx {
 		p := &r.Points[i]
@@ -295,7 +298,9 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 			continue
 		}
 		if nbad++; nbad <= 10 {
-			if nbad > 1 {
+			if bad == nil {
+				bad = newText()
+			} else {
 				bad.s("; ")
 			}
 			bad.point(p, i).s(": ")
@@ -309,14 +314,16 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 	if total == 0 {
 		return notComputed(CheckBackCalculation, "no fitted standard has a non-zero nominal concentration")
 	}
+	t := newText()
+	defer t.free()
 	frac := float64(pass) / float64(total)
 	c := Check{Name: CheckBackCalculation, Statistic: frac, Limit: pol.BackCalcMinPassFraction, Computed: true,
 		Passed: frac >= pol.BackCalcMinPassFraction && levelsOK >= pol.MinLevels}
 	t.i(pass).s(" of ").i(total).s(" standards read back within ±").gc(pol.BackCalcTolerancePct).
 		s(" % of nominal (±").gc(pol.BackCalcLowTolerancePct).s(" % at the lowest level), covering ").i(levelsOK).
 		s(" level(s); required: a fraction of ").gc(pol.BackCalcMinPassFraction).s(" and ").i(pol.MinLevels).s(" levels.")
-	if bad.len() > 0 {
-		t.s(" Outside tolerance: ").s(bad.str()).s(".")
+	if bad != nil {
+		t.s(" Outside tolerance: ").add(bad).s(".")
 	}
 	c.Detail = t.str()
 	return c

@@ -418,6 +418,7 @@ func (t *text) point(p *PointResult, i int) *text {
 	return t.s("reading ").i(i).s(" (x = ").g(p.X).s(")")
 }
 
-func (t *text) len() int { return len(t.b) }
+// add appends the text of u.
+func (t *text) add(u *text) *text { t.b = append(t.b, u.b...); return t }
 
 func (t *text) str() string { return string(t.b) }

@@ -176,8 +176,12 @@ func lchoose(n, k int) float64 {
 // (common practice). Statistic is the largest |studentised residual|.
 func outlierCheck(r *Report, d *dataset, pol Policy) Check {
 	maxR, maxD := 0.0, 0.0
-	bad := newText()
-	defer bad.free()
+	var bad *text // the flagged readings, taken from the pool when there is one
+	defer func() {
+		if bad != nil {
+			bad.free()
+		}
+	}()
 	nbad, lev1 := 0, 0
 	for _, i := range d.idx {
 		p := &r.Points[i]
@@ -189,7 +193,9 @@ func outlierCheck(r *Report, d *dataset, pol Policy) Check {
 		maxD = max(maxD, p.CooksDistance)
 		if a > pol.OutlierStudentized || p.CooksDistance > pol.OutlierCooksD {
 			if nbad++; nbad <= 10 {
-				if nbad > 1 {
+				if bad == nil {
+					bad = newText()
+				} else {
 					bad.s("; ")
 				}
 				bad.point(p, i).s(": studentised ").g(p.Studentized).s(", Cook's D ").g(p.CooksDistance)
@@ -202,8 +208,8 @@ func outlierCheck(r *Report, d *dataset, pol Policy) Check {
 	defer t.free()
 	t.s("Largest |studentised residual| ").g(maxR).s(" (limit ").gc(pol.OutlierStudentized).
 		s("), largest Cook's distance ").g(maxD).s(" (limit ").gc(pol.OutlierCooksD).s(").")
-	if nbad > 0 {
-		t.s(" Flagged: ").s(bad.str()).s(".")
+	if bad != nil {
+		t.s(" Flagged: ").add(bad).s(".")
 	}
 	if lev1 > 0 {
 		t.s(" ").i(lev1).s(" reading(s) have leverage 1 (the curve passes through them), so their residuals cannot be studentised.")

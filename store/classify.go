@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"github.com/jackc/puddle/v2"
 	"io"
 	"net"
 	"strings"
@@ -43,8 +44,8 @@ func classify(op string, err error) error {
 // unavailable reports whether err says the database could not be reached or
 // could not serve the request now, as opposed to refusing it.
 func unavailable(err error) bool {
-	if errors.Is(err, context.DeadlineExceeded) {
-		return true
+	if errors.Is(err, context.DeadlineExceeded) || errors.Is(err, puddle.ErrClosedPool) {
+		return true // a closed pool: the service is shutting down
 	}
 	var pgErr *pgconn.PgError
 	if errors.As(err, &pgErr) {

@@ -32,19 +32,22 @@ type MethodInput struct {
 	Confidence float64 // two-sided, in (0, 1)
 	Analytes   []Analyte
 	Acceptance calib.Policy
+	// Description is the administrator's free text about the method.
+	Description string
 }
 
 // Method is one stored revision of a method.
 type Method struct {
-	Name       string
-	Revision   int
-	Model      calib.Model
-	Weighting  calib.Weighting
-	Confidence float64
-	Analytes   []Analyte
-	Acceptance calib.Policy
-	CreatedAt  time.Time
-	CreatedBy  string
+	Name        string
+	Revision    int
+	Model       calib.Model
+	Weighting   calib.Weighting
+	Confidence  float64
+	Analytes    []Analyte
+	Acceptance  calib.Policy
+	Description string
+	CreatedAt   time.Time
+	CreatedBy   string
 }
 
 // Options returns the engine options this method revision fits with.
@@ -157,10 +160,11 @@ func (db *DB) CreateMethod(ctx context.Context, in MethodInput, actor string) (m
 			revision = latest.Revision + 1
 		}
 		m, err = scanMethod(tx.QueryRow(ctx, `
-INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by)
-VALUES ($1, $2, $3, $4, $5, $6, $7, $8)
+INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by, description)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9)
 RETURNING `+methodColumns,
-			in.Name, revision, string(in.Model), string(in.Weighting), in.Confidence, analytesJSON, policyJSON, actor))
+			in.Name, revision, string(in.Model), string(in.Weighting), in.Confidence, analytesJSON, policyJSON, actor,
+			in.Description))
 		if err != nil {
 			return classify("insert method "+in.Name, err)
 		}
@@ -181,11 +185,12 @@ RETURNING `+methodColumns,
 
 func sameMethod(m *Method, in MethodInput) bool {
 	return m.Model == in.Model && m.Weighting == in.Weighting && m.Confidence == in.Confidence &&
+		m.Description == in.Description &&
 		slices.Equal(m.Analytes, in.Analytes) && reflect.DeepEqual(m.Acceptance, in.Acceptance)
 }
 
 const (
-	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by`
+	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by, description`
 	sqlSelectMethod = `SELECT ` + methodColumns + ` FROM methods`
 )
 
@@ -195,7 +200,8 @@ func scanMethod(row pgx.Row) (*Method, error) {
 		model, weighting     string
 		analytes, acceptance []byte
 	)
-	if err := row.Scan(&m.Name, &m.Revision, &model, &weighting, &m.Confidence, &analytes, &acceptance, &m.CreatedAt, &m.CreatedBy); err != nil {
+	if err := row.Scan(&m.Name, &m.Revision, &model, &weighting, &m.Confidence, &analytes, &acceptance, &m.CreatedAt, &m.CreatedBy,
+		&m.Description); err != nil {
 		return nil, err
 	}
 	m.Model, m.Weighting = calib.Model(model), calib.Weighting(weighting)
