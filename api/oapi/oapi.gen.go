@@ -158,6 +158,45 @@ func (e Model) Valid() bool {
 	}
 }
 
+// Defines values for ReleaseState.
+const (
+	ReleaseProvisional ReleaseState = "provisional"
+	ReleaseReleasable  ReleaseState = "releasable"
+	ReleaseWithheld    ReleaseState = "withheld"
+)
+
+// Valid indicates whether the value is a known member of the ReleaseState enum.
+func (e ReleaseState) Valid() bool {
+	switch e {
+	case ReleaseProvisional:
+		return true
+	case ReleaseReleasable:
+		return true
+	case ReleaseWithheld:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for ResultEventKind.
+const (
+	ResultEventCreated      ResultEventKind = "created"
+	ResultEventStateChanged ResultEventKind = "state_changed"
+)
+
+// Valid indicates whether the value is a known member of the ResultEventKind enum.
+func (e ResultEventKind) Valid() bool {
+	switch e {
+	case ResultEventCreated:
+		return true
+	case ResultEventStateChanged:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for ReviewDecision.
 const (
 	ReviewApprove ReviewDecision = "approve"
@@ -263,6 +302,24 @@ func (e Verdict) Valid() bool {
 	}
 }
 
+// Defines values for VerificationKind.
+const (
+	VerificationContinuing VerificationKind = "continuing"
+	VerificationInitial    VerificationKind = "initial"
+)
+
+// Valid indicates whether the value is a known member of the VerificationKind enum.
+func (e VerificationKind) Valid() bool {
+	switch e {
+	case VerificationContinuing:
+		return true
+	case VerificationInitial:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for Weighting.
 const (
 	WeightingAuto  Weighting = "auto"
@@ -324,6 +381,11 @@ type AcceptanceInput struct {
 
 	// RunsAlpha A significance level.
 	RunsAlpha *Alpha `json:"runs_alpha,omitempty"`
+
+	// VerificationTolerancePct |%D| a verification standard (ICV/CCV) may show against its
+	// nominal value. Default 20, after US EPA SW-846 Method 8000D
+	// calibration verification; the laboratory's method sets its own.
+	VerificationTolerancePct *float64 `json:"verification_tolerance_pct,omitempty"`
 }
 
 // AcceptancePolicy Every threshold in force, defaults filled in.
@@ -342,6 +404,9 @@ type AcceptancePolicy struct {
 	OutlierCooksD           float64     `json:"outlier_cooks_d"`
 	OutlierStudentized      float64     `json:"outlier_studentized"`
 	RunsAlpha               float64     `json:"runs_alpha"`
+
+	// VerificationTolerancePct The |%D| allowed for verification standards (default 20, US EPA SW-846 Method 8000D).
+	VerificationTolerancePct float64 `json:"verification_tolerance_pct"`
 }
 
 // Alpha A significance level.
@@ -480,8 +545,11 @@ type Curve struct {
 
 	// EngineVersion The calibration engine that computed the fit, e.g. `calib/1.0.0`.
 	EngineVersion string `json:"engine_version"`
-	ID            UUID   `json:"id"`
-	Instrument    string `json:"instrument"`
+
+	// Exclusion Present on an exclusion revision.
+	Exclusion  *Exclusion `json:"exclusion,omitempty"`
+	ID         UUID       `json:"id"`
+	Instrument string     `json:"instrument"`
 
 	// Levels Distinct levels in the fit.
 	Levels int `json:"levels"`
@@ -514,7 +582,10 @@ type Curve struct {
 
 	// Review The review decision, present once the curve is reviewed.
 	Review *Review `json:"review,omitempty"`
-	RunID  UUID    `json:"run_id"`
+
+	// RevisionOf Present on an exclusion revision, the curve it was refitted from.
+	RevisionOf *UUID `json:"revision_of,omitempty"`
+	RunID      UUID  `json:"run_id"`
 
 	// StandardErrors Standard errors of the coefficients, same order.
 	StandardErrors []float64 `json:"standard_errors"`
@@ -545,6 +616,28 @@ type Curve struct {
 
 	// ZeroHandling How zero concentrations or responses were kept from producing infinite weights; empty when none arose.
 	ZeroHandling string `json:"zero_handling"`
+}
+
+// CurveInForce defines model for CurveInForce.
+type CurveInForce struct {
+	// At The moment asked about.
+	At time.Time `json:"at"`
+
+	// Basis Why this curve is in force, in words.
+	Basis string `json:"basis"`
+
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions     `json:"cautions"`
+	Curve    CurveSummary `json:"curve"`
+
+	// ExpiresAt When it leaves force by the method's maximum age; null without one.
+	ExpiresAt *time.Time `json:"expires_at"`
+
+	// LastVerification The latest verification at or before `at`; null when none.
+	LastVerification *Verification `json:"last_verification"`
 }
 
 // CurveList defines model for CurveList.
@@ -622,6 +715,41 @@ type CurveSummary struct {
 // Dilution Dilution factor applied after inversion (reported = curve value × dilution); 1 when absent.
 type Dilution = float64
 
+// Exclusion Present on an exclusion revision.
+type Exclusion struct {
+	Actor string    `json:"actor"`
+	At    time.Time `json:"at"`
+
+	// Points Every reading the revision excludes.
+	Points []struct {
+		Level     string `json:"level"`
+		Replicate int    `json:"replicate"`
+	} `json:"points"`
+	RangeReason *string `json:"range_reason"`
+	Reason      string  `json:"reason"`
+	RevisionOf  UUID    `json:"revision_of"`
+}
+
+// ExclusionPoint defines model for ExclusionPoint.
+type ExclusionPoint struct {
+	// Level A name of an instrument, analyte, method, level or sample.
+	Level Identifier `json:"level"`
+
+	// Replicate One reading of the level, 1-based in acquisition order; every reading of the level when absent.
+	Replicate *int `json:"replicate,omitempty"`
+}
+
+// ExclusionRequest defines model for ExclusionRequest.
+type ExclusionRequest struct {
+	Points []ExclusionPoint `json:"points"`
+
+	// RangeReason Why the range may shrink at both ends; required when the lowest and highest levels are both excluded.
+	RangeReason *Text `json:"range_reason,omitempty"`
+
+	// Reason Why the readings are excluded.
+	Reason Text `json:"reason"`
+}
+
 // Health defines model for Health.
 type Health struct {
 	Status HealthStatus `json:"status"`
@@ -633,12 +761,43 @@ type HealthStatus string
 // Identifier A name of an instrument, analyte, method, level or sample.
 type Identifier = string
 
+// InstrumentPredictionRequest defines model for InstrumentPredictionRequest.
+type InstrumentPredictionRequest struct {
+	// Analyte A name of an instrument, analyte, method, level or sample.
+	Analyte Identifier `json:"analyte"`
+
+	// At The moment whose curve in force is used; now when absent.
+	At *time.Time `json:"at,omitempty"`
+
+	// Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
+	Confidence *Confidence        `json:"confidence,omitempty"`
+	Samples    []PredictionSample `json:"samples"`
+}
+
 // Interval Confidence interval of the concentration. When `bounded` is false, `low` and `high` are null.
 type Interval struct {
 	Bounded bool     `json:"bounded"`
 	High    *float64 `json:"high"`
 	Level   float64  `json:"level"`
 	Low     *float64 `json:"low"`
+}
+
+// LateSampleInput defines model for LateSampleInput.
+type LateSampleInput struct {
+	// AcquiredAt When the sample was measured; the time received when absent.
+	AcquiredAt *time.Time `json:"acquired_at,omitempty"`
+
+	// Analyte A name of an instrument, analyte, method, level or sample.
+	Analyte Identifier `json:"analyte"`
+
+	// Dilution Dilution factor applied after inversion (reported = curve value × dilution); 1 when absent.
+	Dilution *Dilution `json:"dilution,omitempty"`
+
+	// ID A name of an instrument, analyte, method, level or sample.
+	ID Identifier `json:"id"`
+
+	// Responses Replicate readings, in acquisition order.
+	Responses Responses `json:"responses"`
 }
 
 // Limits Detection and quantification limits, in concentration units except `critical_value` (a response); null when not computed.
@@ -678,11 +837,15 @@ type Method struct {
 	// Description Empty when none was given.
 	Description string `json:"description"`
 
+	// MaxCurveAgeHours Null when curves do not expire.
+	MaxCurveAgeHours *float64 `json:"max_curve_age_hours"`
+
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
-	Model    Model  `json:"model"`
-	Name     string `json:"name"`
-	Revision int    `json:"revision"`
+	Model                Model  `json:"model"`
+	Name                 string `json:"name"`
+	PendingCurvesInForce bool   `json:"pending_curves_in_force"`
+	Revision             int    `json:"revision"`
 
 	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
 	// replicate SDs; `auto` chooses among the others by the smallest sum of
@@ -708,12 +871,18 @@ type MethodRequest struct {
 	// Description Free text for people; no control characters except tab, line feed and carriage return.
 	Description *Text `json:"description,omitempty"`
 
+	// MaxCurveAgeHours How long after acquisition a curve stays in force; no limit when absent.
+	MaxCurveAgeHours *float64 `json:"max_curve_age_hours,omitempty"`
+
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
 	Model Model `json:"model"`
 
 	// Name A name of an instrument, analyte, method, level or sample.
 	Name Identifier `json:"name"`
+
+	// PendingCurvesInForce Whether a passing curve that awaits review may be the curve in force (default false).
+	PendingCurvesInForce *bool `json:"pending_curves_in_force,omitempty"`
 
 	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
 	// replicate SDs; `auto` chooses among the others by the smallest sum of
@@ -767,6 +936,8 @@ type PredictionResult struct {
 
 	// Flags `below_range`, `above_range`, `extrapolated`, `below_lod`,
 	// `below_loq`, `negative`, `no_root_in_range`, `unbounded_interval`.
+	// Stored sample results may also carry `no_curve` and
+	// `not_quantifiable` (see `SampleResult`).
 	Flags []string `json:"flags"`
 	ID    string   `json:"id"`
 
@@ -836,11 +1007,63 @@ type Range struct {
 	Low  *float64 `json:"low"`
 }
 
+// ReleaseState `provisional` while the curve awaits review; `releasable` once it is
+// approved and no verification failed before the sample; `withheld`
+// when the curve is rejected, failed, unfittable or superseded, or a
+// verification failed before the sample. `release_reason` says which.
+type ReleaseState string
+
 // Response One instrument reading (may be negative after blank correction).
 type Response = float64
 
 // Responses Replicate readings, in acquisition order.
 type Responses = []Response
+
+// ResultEvent defines model for ResultEvent.
+type ResultEvent struct {
+	Analyte string    `json:"analyte"`
+	At      time.Time `json:"at"`
+
+	// Cause `run.create`, `samples.add`, `curve.review`, `curve.verification` or `curve.exclusion`.
+	Cause         string          `json:"cause"`
+	Concentration *float64        `json:"concentration"`
+	CurveID       UUID            `json:"curve_id"`
+	Kind          ResultEventKind `json:"kind"`
+
+	// PreviousState The state before; null for `created`.
+	PreviousState *ReleaseState `json:"previous_state"`
+	Reason        string        `json:"reason"`
+
+	// ReleaseState `provisional` while the curve awaits review; `releasable` once it is
+	// approved and no verification failed before the sample; `withheld`
+	// when the curve is rejected, failed, unfittable or superseded, or a
+	// verification failed before the sample. `release_reason` says which.
+	ReleaseState ReleaseState `json:"release_state"`
+	ResultID     int64        `json:"result_id"`
+	RunID        UUID         `json:"run_id"`
+	SampleID     string       `json:"sample_id"`
+
+	// Seq Position in the feed; increases with every event.
+	Seq  int64  `json:"seq"`
+	Unit string `json:"unit"`
+}
+
+// ResultEventKind defines model for ResultEvent.Kind.
+type ResultEventKind string
+
+// ResultFeed defines model for ResultFeed.
+type ResultFeed struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions      `json:"cautions"`
+	Events   []ResultEvent `json:"events"`
+	HasMore  bool          `json:"has_more"`
+
+	// NextCursor Pass as `since` for the next page; never null.
+	NextCursor string `json:"next_cursor"`
+}
 
 // Review The review decision, present once the curve is reviewed.
 type Review struct {
@@ -962,6 +1185,17 @@ type RunRequest struct {
 	Standards []StandardInput `json:"standards"`
 }
 
+// RunResults defines model for RunResults.
+type RunResults struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions       `json:"cautions"`
+	Results  []SampleResult `json:"results"`
+	RunID    UUID           `json:"run_id"`
+}
+
 // RunSample defines model for RunSample.
 type RunSample struct {
 	Analyte string `json:"analyte"`
@@ -985,6 +1219,70 @@ type RunSampleInput struct {
 
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
+}
+
+// SampleResult A sample quantified against a curve when it was stored.
+type SampleResult struct {
+	AcquiredAt time.Time `json:"acquired_at"`
+	Analyte    string    `json:"analyte"`
+
+	// Concentration After dilution; null when the curve gave no value (see `flags`).
+	Concentration *float64  `json:"concentration"`
+	CreatedAt     time.Time `json:"created_at"`
+	CreatedBy     string    `json:"created_by"`
+
+	// CurveID The curve the concentration came from.
+	CurveID UUID `json:"curve_id"`
+
+	// Dilution The dilution factor applied after inversion (reported = curve value × dilution).
+	Dilution float64 `json:"dilution"`
+
+	// Flags The prediction flags of `POST /v1/curves/{id}/predictions`, and
+	// `no_curve` (the curve could not be fitted) or `not_quantifiable`
+	// (the engine refused the readings; `interval_method` says why).
+	Flags []string `json:"flags"`
+
+	// ID The result's id, as the change feed names it.
+	ID int64 `json:"id"`
+
+	// Interval Confidence interval of the concentration. When `bounded` is false, `low` and `high` are null.
+	Interval       Interval `json:"interval"`
+	IntervalMethod string   `json:"interval_method"`
+	MeanResponse   float64  `json:"mean_response"`
+	Readings       int      `json:"readings"`
+	ReleaseReason  string   `json:"release_reason"`
+
+	// ReleaseState `provisional` while the curve awaits review; `releasable` once it is
+	// approved and no verification failed before the sample; `withheld`
+	// when the curve is rejected, failed, unfittable or superseded, or a
+	// verification failed before the sample. `release_reason` says which.
+	ReleaseState  ReleaseState `json:"release_state"`
+	Responses     []float64    `json:"responses"`
+	RunID         UUID         `json:"run_id"`
+	SampleID      string       `json:"sample_id"`
+	StandardError *float64     `json:"standard_error"`
+
+	// StateChangedAt When the release state or its reason last changed.
+	StateChangedAt time.Time `json:"state_changed_at"`
+
+	// Unit UCUM code of the analyte's concentration unit, which `concentration`, `standard_error` and `interval` are in.
+	Unit string `json:"unit"`
+}
+
+// SampleResults defines model for SampleResults.
+type SampleResults struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions       `json:"cautions"`
+	Results  []SampleResult `json:"results"`
+	SampleID string         `json:"sample_id"`
+}
+
+// SamplesRequest defines model for SamplesRequest.
+type SamplesRequest struct {
+	Samples []LateSampleInput `json:"samples"`
 }
 
 // Scope defines model for Scope.
@@ -1115,6 +1413,80 @@ type VarianceModel struct {
 // Verdict `fail` when any mandatory check failed or the curve could not be fitted.
 type Verdict string
 
+// Verification defines model for Verification.
+type Verification struct {
+	At            time.Time `json:"at"`
+	Concentration float64   `json:"concentration"`
+	CreatedAt     time.Time `json:"created_at"`
+	CreatedBy     string    `json:"created_by"`
+	CurveID       UUID      `json:"curve_id"`
+	Detail        string    `json:"detail"`
+
+	// DifferencePct %D = 100·(found − nominal)/nominal.
+	DifferencePct *float64 `json:"difference_pct"`
+
+	// Found Concentration read back; null when the curve has no root for the response.
+	Found *float64 `json:"found"`
+	ID    UUID     `json:"id"`
+
+	// Kind `initial` (ICV) or `continuing` (CCV) calibration verification.
+	Kind  VerificationKind `json:"kind"`
+	Level string           `json:"level"`
+
+	// LimitPct The |%D| allowed by the curve's method revision.
+	LimitPct    float64   `json:"limit_pct"`
+	Passed      bool      `json:"passed"`
+	RecoveryPct *float64  `json:"recovery_pct"`
+	Responses   []float64 `json:"responses"`
+
+	// Source Where the limit's default comes from.
+	Source string `json:"source"`
+}
+
+// VerificationCreated defines model for VerificationCreated.
+type VerificationCreated struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions `json:"cautions"`
+
+	// ResultsChanged How many results changed release state because of it.
+	ResultsChanged int          `json:"results_changed"`
+	Verification   Verification `json:"verification"`
+}
+
+// VerificationKind `initial` (ICV) or `continuing` (CCV) calibration verification.
+type VerificationKind string
+
+// VerificationList defines model for VerificationList.
+type VerificationList struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions      Cautions       `json:"cautions"`
+	Verifications []Verification `json:"verifications"`
+}
+
+// VerificationRequest defines model for VerificationRequest.
+type VerificationRequest struct {
+	// At When the standard was measured.
+	At time.Time `json:"at"`
+
+	// Concentration Nominal concentration, > 0, in the analyte's unit.
+	Concentration float64 `json:"concentration"`
+
+	// Kind `initial` (ICV) or `continuing` (CCV) calibration verification.
+	Kind VerificationKind `json:"kind"`
+
+	// Level A name of an instrument, analyte, method, level or sample.
+	Level Identifier `json:"level"`
+
+	// Responses Replicate readings, in acquisition order.
+	Responses Responses `json:"responses"`
+}
+
 // WeightCandidate defines model for WeightCandidate.
 type WeightCandidate struct {
 	Chosen bool `json:"chosen"`
@@ -1143,6 +1515,9 @@ type CurveID = UUID
 
 // IdempotencyKey defines model for IdempotencyKey.
 type IdempotencyKey = string
+
+// Instrument A name of an instrument, analyte, method, level or sample.
+type Instrument = Identifier
 
 // RunID defines model for RunID.
 type RunID = UUID
@@ -1201,10 +1576,27 @@ type ListCurvesParams struct {
 	Cursor *Cursor `form:"cursor,omitempty" json:"cursor,omitempty"`
 }
 
+// GetCurveInForceParams defines parameters for GetCurveInForce.
+type GetCurveInForceParams struct {
+	Analyte Identifier `form:"analyte" json:"analyte"`
+
+	// At The moment, RFC 3339; now when absent.
+	At *time.Time `form:"at,omitempty" json:"at,omitempty"`
+}
+
 // GetMethodParams defines parameters for GetMethod.
 type GetMethodParams struct {
 	// Revision A specific revision; the latest when absent.
 	Revision *int `form:"revision,omitempty" json:"revision,omitempty"`
+}
+
+// ListResultEventsParams defines parameters for ListResultEvents.
+type ListResultEventsParams struct {
+	// Since The `next_cursor` of the previous page; absent for the start of the feed.
+	Since *Cursor `form:"since,omitempty" json:"since,omitempty"`
+
+	// Limit Page size.
+	Limit *int `form:"limit,omitempty" json:"limit,omitempty"`
 }
 
 // CreateRunParams defines parameters for CreateRun.
@@ -1258,17 +1650,29 @@ type GetTrendPlotSVGParams struct {
 	Baseline *int `form:"baseline,omitempty" json:"baseline,omitempty"`
 }
 
+// CreateExclusionJSONRequestBody defines body for CreateExclusion for application/json ContentType.
+type CreateExclusionJSONRequestBody = ExclusionRequest
+
 // CreatePredictionsJSONRequestBody defines body for CreatePredictions for application/json ContentType.
 type CreatePredictionsJSONRequestBody = PredictionRequest
 
 // ReviewCurveJSONRequestBody defines body for ReviewCurve for application/json ContentType.
 type ReviewCurveJSONRequestBody = ReviewRequest
 
+// CreateVerificationJSONRequestBody defines body for CreateVerification for application/json ContentType.
+type CreateVerificationJSONRequestBody = VerificationRequest
+
+// CreateInstrumentPredictionsJSONRequestBody defines body for CreateInstrumentPredictions for application/json ContentType.
+type CreateInstrumentPredictionsJSONRequestBody = InstrumentPredictionRequest
+
 // CreateMethodJSONRequestBody defines body for CreateMethod for application/json ContentType.
 type CreateMethodJSONRequestBody = MethodRequest
 
 // CreateRunJSONRequestBody defines body for CreateRun for application/json ContentType.
 type CreateRunJSONRequestBody = RunRequest
+
+// CreateRunSamplesJSONRequestBody defines body for CreateRunSamples for application/json ContentType.
+type CreateRunSamplesJSONRequestBody = SamplesRequest
 
 // CreateTokenJSONRequestBody defines body for CreateToken for application/json ContentType.
 type CreateTokenJSONRequestBody = TokenRequest
@@ -1296,6 +1700,9 @@ type ServerInterface interface {
 	// GetCurveAudit Audit trail of a curve
 	// (GET /v1/curves/{id}/audit)
 	GetCurveAudit(ctx echo.Context, id CurveID) error
+	// CreateExclusion Exclude standards and refit, as a new revision
+	// (POST /v1/curves/{id}/exclusions)
+	CreateExclusion(ctx echo.Context, id CurveID) error
 	// GetCurvePlotPNG Plot of a curve, PNG
 	// (GET /v1/curves/{id}/plot.png)
 	GetCurvePlotPNG(ctx echo.Context, id CurveID) error
@@ -1308,6 +1715,18 @@ type ServerInterface interface {
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
 	ReviewCurve(ctx echo.Context, id CurveID) error
+	// ListVerifications Verification standards of a curve
+	// (GET /v1/curves/{id}/verifications)
+	ListVerifications(ctx echo.Context, id CurveID) error
+	// CreateVerification Record a verification standard (ICV/CCV)
+	// (POST /v1/curves/{id}/verifications)
+	CreateVerification(ctx echo.Context, id CurveID) error
+	// GetCurveInForce The curve in force at a moment
+	// (GET /v1/instruments/{instrument}/curves/current)
+	GetCurveInForce(ctx echo.Context, instrument Instrument, params GetCurveInForceParams) error
+	// CreateInstrumentPredictions Quantify against the curve in force
+	// (POST /v1/instruments/{instrument}/predictions)
+	CreateInstrumentPredictions(ctx echo.Context, instrument Instrument) error
 	// ListMethods All methods, latest revisions
 	// (GET /v1/methods)
 	ListMethods(ctx echo.Context) error
@@ -1317,12 +1736,24 @@ type ServerInterface interface {
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx echo.Context, name Identifier, params GetMethodParams) error
+	// ListResultEvents Change feed of sample results
+	// (GET /v1/results)
+	ListResultEvents(ctx echo.Context, params ListResultEventsParams) error
 	// CreateRun Post a run and fit its curves
 	// (POST /v1/runs)
 	CreateRun(ctx echo.Context, params CreateRunParams) error
 	// GetRun A run as stored
 	// (GET /v1/runs/{id})
 	GetRun(ctx echo.Context, id RunID) error
+	// GetRunResults Sample results of a run
+	// (GET /v1/runs/{id}/results)
+	GetRunResults(ctx echo.Context, id RunID) error
+	// CreateRunSamples Add samples to a run and quantify them
+	// (POST /v1/runs/{id}/samples)
+	CreateRunSamples(ctx echo.Context, id RunID) error
+	// GetSampleResults Every result for a LIMS sample id
+	// (GET /v1/samples/{sample_id})
+	GetSampleResults(ctx echo.Context, sampleID Identifier) error
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx echo.Context) error
@@ -1484,6 +1915,22 @@ func (w *ServerInterfaceWrapper) GetCurveAudit(ctx echo.Context) error {
 	return err
 }
 
+// CreateExclusion converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateExclusion(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateExclusion(ctx, id)
+	return err
+}
+
 // GetCurvePlotPNG converts echo context to params.
 func (w *ServerInterfaceWrapper) GetCurvePlotPNG(ctx echo.Context) error {
 	var err error
@@ -1548,6 +1995,86 @@ func (w *ServerInterfaceWrapper) ReviewCurve(ctx echo.Context) error {
 	return err
 }
 
+// ListVerifications converts echo context to params.
+func (w *ServerInterfaceWrapper) ListVerifications(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListVerifications(ctx, id)
+	return err
+}
+
+// CreateVerification converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateVerification(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateVerification(ctx, id)
+	return err
+}
+
+// GetCurveInForce converts echo context to params.
+func (w *ServerInterfaceWrapper) GetCurveInForce(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "instrument" -------------
+	var instrument Instrument
+
+	err = runtime.BindStyledParameterWithOptions("simple", "instrument", ctx.Param("instrument"), &instrument, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params GetCurveInForceParams
+	// ------------- Required query parameter "analyte" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "analyte", ctx.QueryParams(), &params.Analyte, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter analyte: %s", err))
+	}
+
+	// ------------- Optional query parameter "at" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "at", ctx.QueryParams(), &params.At, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter at: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetCurveInForce(ctx, instrument, params)
+	return err
+}
+
+// CreateInstrumentPredictions converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateInstrumentPredictions(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "instrument" -------------
+	var instrument Instrument
+
+	err = runtime.BindStyledParameterWithOptions("simple", "instrument", ctx.Param("instrument"), &instrument, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateInstrumentPredictions(ctx, instrument)
+	return err
+}
+
 // ListMethods converts echo context to params.
 func (w *ServerInterfaceWrapper) ListMethods(ctx echo.Context) error {
 	var err error
@@ -1588,6 +2115,31 @@ func (w *ServerInterfaceWrapper) GetMethod(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.GetMethod(ctx, name, params)
+	return err
+}
+
+// ListResultEvents converts echo context to params.
+func (w *ServerInterfaceWrapper) ListResultEvents(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params ListResultEventsParams
+	// ------------- Optional query parameter "since" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "since", ctx.QueryParams(), &params.Since, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter since: %s", err))
+	}
+
+	// ------------- Optional query parameter "limit" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "limit", ctx.QueryParams(), &params.Limit, runtime.BindQueryParameterOptions{Type: "integer", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter limit: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListResultEvents(ctx, params)
 	return err
 }
 
@@ -1660,6 +2212,54 @@ func (w *ServerInterfaceWrapper) GetRun(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.GetRun(ctx, id)
+	return err
+}
+
+// GetRunResults converts echo context to params.
+func (w *ServerInterfaceWrapper) GetRunResults(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id RunID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetRunResults(ctx, id)
+	return err
+}
+
+// CreateRunSamples converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateRunSamples(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id RunID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateRunSamples(ctx, id)
+	return err
+}
+
+// GetSampleResults converts echo context to params.
+func (w *ServerInterfaceWrapper) GetSampleResults(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "sample_id" -------------
+	var sampleID Identifier
+
+	err = runtime.BindStyledParameterWithOptions("simple", "sample_id", ctx.Param("sample_id"), &sampleID, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter sample_id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetSampleResults(ctx, sampleID)
 	return err
 }
 
@@ -1856,6 +2456,15 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/curves/:id/plot.png", wrapper.GetCurvePlotPNG, options.OperationMiddlewares["getCurvePlotPNG"]...)
 	router.GET(options.BaseURL+"/v1/trends", wrapper.GetTrend, options.OperationMiddlewares["getTrend"]...)
 	router.GET(options.BaseURL+"/v1/trends/plot.svg", wrapper.GetTrendPlotSVG, options.OperationMiddlewares["getTrendPlotSVG"]...)
+	router.POST(options.BaseURL+"/v1/runs/:id/samples", wrapper.CreateRunSamples, options.OperationMiddlewares["createRunSamples"]...)
+	router.GET(options.BaseURL+"/v1/runs/:id/results", wrapper.GetRunResults, options.OperationMiddlewares["getRunResults"]...)
+	router.GET(options.BaseURL+"/v1/samples/:sample_id", wrapper.GetSampleResults, options.OperationMiddlewares["getSampleResults"]...)
+	router.GET(options.BaseURL+"/v1/results", wrapper.ListResultEvents, options.OperationMiddlewares["listResultEvents"]...)
+	router.GET(options.BaseURL+"/v1/curves/:id/verifications", wrapper.ListVerifications, options.OperationMiddlewares["listVerifications"]...)
+	router.POST(options.BaseURL+"/v1/curves/:id/verifications", wrapper.CreateVerification, options.OperationMiddlewares["createVerification"]...)
+	router.POST(options.BaseURL+"/v1/curves/:id/exclusions", wrapper.CreateExclusion, options.OperationMiddlewares["createExclusion"]...)
+	router.GET(options.BaseURL+"/v1/instruments/:instrument/curves/current", wrapper.GetCurveInForce, options.OperationMiddlewares["getCurveInForce"]...)
+	router.POST(options.BaseURL+"/v1/instruments/:instrument/predictions", wrapper.CreateInstrumentPredictions, options.OperationMiddlewares["createInstrumentPredictions"]...)
 	router.GET(options.BaseURL+"/v1/methods", wrapper.ListMethods, options.OperationMiddlewares["listMethods"]...)
 	router.POST(options.BaseURL+"/v1/methods", wrapper.CreateMethod, options.OperationMiddlewares["createMethod"]...)
 	router.GET(options.BaseURL+"/v1/methods/:name", wrapper.GetMethod, options.OperationMiddlewares["getMethod"]...)
@@ -2458,6 +3067,216 @@ type GetCurveAudit503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response GetCurveAudit503ApplicationProblemPlusJSONResponse) VisitGetCurveAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusionRequestObject struct {
+	ID   CurveID `json:"id"`
+	Body *CreateExclusionJSONRequestBody
+}
+
+type CreateExclusionResponseObject interface {
+	VisitCreateExclusionResponse(w http.ResponseWriter) error
+}
+
+type CreateExclusion201ResponseHeaders struct {
+	Location string
+}
+
+type CreateExclusion201JSONResponse struct {
+	Body    Curve
+	Headers CreateExclusion201ResponseHeaders
+}
+
+func (response CreateExclusion201JSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.Header().Set("Location", fmt.Sprint(response.Headers.Location))
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion400ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion401ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion403ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion404ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion409ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion413ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion415ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion422ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion429ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion500ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion503ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -3160,6 +3979,685 @@ func (response ReviewCurve503ApplicationProblemPlusJSONResponse) VisitReviewCurv
 	return err
 }
 
+type ListVerificationsRequestObject struct {
+	ID CurveID `json:"id"`
+}
+
+type ListVerificationsResponseObject interface {
+	VisitListVerificationsResponse(w http.ResponseWriter) error
+}
+
+type ListVerifications200JSONResponse VerificationList
+
+func (response ListVerifications200JSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications400ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications401ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications403ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications404ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications429ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications500ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications503ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerificationRequestObject struct {
+	ID   CurveID `json:"id"`
+	Body *CreateVerificationJSONRequestBody
+}
+
+type CreateVerificationResponseObject interface {
+	VisitCreateVerificationResponse(w http.ResponseWriter) error
+}
+
+type CreateVerification201JSONResponse VerificationCreated
+
+func (response CreateVerification201JSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification400ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification401ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification403ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification404ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification409ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification413ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification415ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification422ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification429ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification500ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification503ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForceRequestObject struct {
+	Instrument Instrument `json:"instrument"`
+	Params     GetCurveInForceParams
+}
+
+type GetCurveInForceResponseObject interface {
+	VisitGetCurveInForceResponse(w http.ResponseWriter) error
+}
+
+type GetCurveInForce200JSONResponse CurveInForce
+
+func (response GetCurveInForce200JSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce400ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce401ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce403ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce404ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce429ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce500ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce503ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionsRequestObject struct {
+	Instrument Instrument `json:"instrument"`
+	Body       *CreateInstrumentPredictionsJSONRequestBody
+}
+
+type CreateInstrumentPredictionsResponseObject interface {
+	VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error
+}
+
+type CreateInstrumentPredictions200JSONResponse PredictionResponse
+
+func (response CreateInstrumentPredictions200JSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions400ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions401ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions403ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions404ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions409ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions413ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions415ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions422ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions429ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions500ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions503ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type ListMethodsRequestObject struct {
 }
 
@@ -3625,6 +5123,127 @@ func (response GetMethod503ApplicationProblemPlusJSONResponse) VisitGetMethodRes
 	return err
 }
 
+type ListResultEventsRequestObject struct {
+	Params ListResultEventsParams
+}
+
+type ListResultEventsResponseObject interface {
+	VisitListResultEventsResponse(w http.ResponseWriter) error
+}
+
+type ListResultEvents200JSONResponse ResultFeed
+
+func (response ListResultEvents200JSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents400ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents401ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents403ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents429ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents500ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents503ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type CreateRunRequestObject struct {
 	Params   CreateRunParams
 	JSONBody *CreateRunJSONRequestBody
@@ -3947,6 +5566,482 @@ type GetRun503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response GetRun503ApplicationProblemPlusJSONResponse) VisitGetRunResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResultsRequestObject struct {
+	ID RunID `json:"id"`
+}
+
+type GetRunResultsResponseObject interface {
+	VisitGetRunResultsResponse(w http.ResponseWriter) error
+}
+
+type GetRunResults200JSONResponse RunResults
+
+func (response GetRunResults200JSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults400ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults401ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults403ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults404ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults429ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults500ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults503ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamplesRequestObject struct {
+	ID   RunID `json:"id"`
+	Body *CreateRunSamplesJSONRequestBody
+}
+
+type CreateRunSamplesResponseObject interface {
+	VisitCreateRunSamplesResponse(w http.ResponseWriter) error
+}
+
+type CreateRunSamples201JSONResponse RunResults
+
+func (response CreateRunSamples201JSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples400ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples401ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples403ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples404ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples409ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples413ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples415ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples422ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples429ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples500ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples503ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResultsRequestObject struct {
+	SampleID Identifier `json:"sample_id"`
+}
+
+type GetSampleResultsResponseObject interface {
+	VisitGetSampleResultsResponse(w http.ResponseWriter) error
+}
+
+type GetSampleResults200JSONResponse SampleResults
+
+func (response GetSampleResults200JSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults400ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults401ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults403ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults404ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults429ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults500ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -4530,6 +6625,9 @@ type StrictServerInterface interface {
 	// GetCurveAudit Audit trail of a curve
 	// (GET /v1/curves/{id}/audit)
 	GetCurveAudit(ctx context.Context, request GetCurveAuditRequestObject) (GetCurveAuditResponseObject, error)
+	// CreateExclusion Exclude standards and refit, as a new revision
+	// (POST /v1/curves/{id}/exclusions)
+	CreateExclusion(ctx context.Context, request CreateExclusionRequestObject) (CreateExclusionResponseObject, error)
 	// GetCurvePlotPNG Plot of a curve, PNG
 	// (GET /v1/curves/{id}/plot.png)
 	GetCurvePlotPNG(ctx context.Context, request GetCurvePlotPNGRequestObject) (GetCurvePlotPNGResponseObject, error)
@@ -4542,6 +6640,18 @@ type StrictServerInterface interface {
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
 	ReviewCurve(ctx context.Context, request ReviewCurveRequestObject) (ReviewCurveResponseObject, error)
+	// ListVerifications Verification standards of a curve
+	// (GET /v1/curves/{id}/verifications)
+	ListVerifications(ctx context.Context, request ListVerificationsRequestObject) (ListVerificationsResponseObject, error)
+	// CreateVerification Record a verification standard (ICV/CCV)
+	// (POST /v1/curves/{id}/verifications)
+	CreateVerification(ctx context.Context, request CreateVerificationRequestObject) (CreateVerificationResponseObject, error)
+	// GetCurveInForce The curve in force at a moment
+	// (GET /v1/instruments/{instrument}/curves/current)
+	GetCurveInForce(ctx context.Context, request GetCurveInForceRequestObject) (GetCurveInForceResponseObject, error)
+	// CreateInstrumentPredictions Quantify against the curve in force
+	// (POST /v1/instruments/{instrument}/predictions)
+	CreateInstrumentPredictions(ctx context.Context, request CreateInstrumentPredictionsRequestObject) (CreateInstrumentPredictionsResponseObject, error)
 	// ListMethods All methods, latest revisions
 	// (GET /v1/methods)
 	ListMethods(ctx context.Context, request ListMethodsRequestObject) (ListMethodsResponseObject, error)
@@ -4551,12 +6661,24 @@ type StrictServerInterface interface {
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx context.Context, request GetMethodRequestObject) (GetMethodResponseObject, error)
+	// ListResultEvents Change feed of sample results
+	// (GET /v1/results)
+	ListResultEvents(ctx context.Context, request ListResultEventsRequestObject) (ListResultEventsResponseObject, error)
 	// CreateRun Post a run and fit its curves
 	// (POST /v1/runs)
 	CreateRun(ctx context.Context, request CreateRunRequestObject) (CreateRunResponseObject, error)
 	// GetRun A run as stored
 	// (GET /v1/runs/{id})
 	GetRun(ctx context.Context, request GetRunRequestObject) (GetRunResponseObject, error)
+	// GetRunResults Sample results of a run
+	// (GET /v1/runs/{id}/results)
+	GetRunResults(ctx context.Context, request GetRunResultsRequestObject) (GetRunResultsResponseObject, error)
+	// CreateRunSamples Add samples to a run and quantify them
+	// (POST /v1/runs/{id}/samples)
+	CreateRunSamples(ctx context.Context, request CreateRunSamplesRequestObject) (CreateRunSamplesResponseObject, error)
+	// GetSampleResults Every result for a LIMS sample id
+	// (GET /v1/samples/{sample_id})
+	GetSampleResults(ctx context.Context, request GetSampleResultsRequestObject) (GetSampleResultsResponseObject, error)
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx context.Context, request CreateTokenRequestObject) (CreateTokenResponseObject, error)
@@ -4750,6 +6872,54 @@ func (sh *strictHandler) GetCurveAudit(ctx echo.Context, id CurveID) error {
 	return nil
 }
 
+// CreateExclusion operation middleware
+func (sh *strictHandler) CreateExclusion(ctx echo.Context, id CurveID) error {
+	var request CreateExclusionRequestObject
+
+	request.ID = id
+
+	var body CreateExclusionJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateExclusion(ctx.Request().Context(), request.(CreateExclusionRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateExclusion")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateExclusionResponseObject); ok {
+		return validResponse.VisitCreateExclusionResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // GetCurvePlotPNG operation middleware
 func (sh *strictHandler) GetCurvePlotPNG(ctx echo.Context, id CurveID) error {
 	var request GetCurvePlotPNGRequestObject
@@ -4896,6 +7066,153 @@ func (sh *strictHandler) ReviewCurve(ctx echo.Context, id CurveID) error {
 	return nil
 }
 
+// ListVerifications operation middleware
+func (sh *strictHandler) ListVerifications(ctx echo.Context, id CurveID) error {
+	var request ListVerificationsRequestObject
+
+	request.ID = id
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListVerifications(ctx.Request().Context(), request.(ListVerificationsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListVerifications")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListVerificationsResponseObject); ok {
+		return validResponse.VisitListVerificationsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateVerification operation middleware
+func (sh *strictHandler) CreateVerification(ctx echo.Context, id CurveID) error {
+	var request CreateVerificationRequestObject
+
+	request.ID = id
+
+	var body CreateVerificationJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateVerification(ctx.Request().Context(), request.(CreateVerificationRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateVerification")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateVerificationResponseObject); ok {
+		return validResponse.VisitCreateVerificationResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetCurveInForce operation middleware
+func (sh *strictHandler) GetCurveInForce(ctx echo.Context, instrument Instrument, params GetCurveInForceParams) error {
+	var request GetCurveInForceRequestObject
+
+	request.Instrument = instrument
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetCurveInForce(ctx.Request().Context(), request.(GetCurveInForceRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetCurveInForce")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetCurveInForceResponseObject); ok {
+		return validResponse.VisitGetCurveInForceResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateInstrumentPredictions operation middleware
+func (sh *strictHandler) CreateInstrumentPredictions(ctx echo.Context, instrument Instrument) error {
+	var request CreateInstrumentPredictionsRequestObject
+
+	request.Instrument = instrument
+
+	var body CreateInstrumentPredictionsJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateInstrumentPredictions(ctx.Request().Context(), request.(CreateInstrumentPredictionsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateInstrumentPredictions")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateInstrumentPredictionsResponseObject); ok {
+		return validResponse.VisitCreateInstrumentPredictionsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // ListMethods operation middleware
 func (sh *strictHandler) ListMethods(ctx echo.Context) error {
 	var request ListMethodsRequestObject
@@ -4991,6 +7308,31 @@ func (sh *strictHandler) GetMethod(ctx echo.Context, name Identifier, params Get
 	return nil
 }
 
+// ListResultEvents operation middleware
+func (sh *strictHandler) ListResultEvents(ctx echo.Context, params ListResultEventsParams) error {
+	var request ListResultEventsRequestObject
+
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListResultEvents(ctx.Request().Context(), request.(ListResultEventsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListResultEvents")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListResultEventsResponseObject); ok {
+		return validResponse.VisitListResultEventsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // CreateRun operation middleware
 func (sh *strictHandler) CreateRun(ctx echo.Context, params CreateRunParams) error {
 	var request CreateRunRequestObject
@@ -5063,6 +7405,104 @@ func (sh *strictHandler) GetRun(ctx echo.Context, id RunID) error {
 		return err
 	} else if validResponse, ok := response.(GetRunResponseObject); ok {
 		return validResponse.VisitGetRunResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetRunResults operation middleware
+func (sh *strictHandler) GetRunResults(ctx echo.Context, id RunID) error {
+	var request GetRunResultsRequestObject
+
+	request.ID = id
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetRunResults(ctx.Request().Context(), request.(GetRunResultsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetRunResults")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetRunResultsResponseObject); ok {
+		return validResponse.VisitGetRunResultsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateRunSamples operation middleware
+func (sh *strictHandler) CreateRunSamples(ctx echo.Context, id RunID) error {
+	var request CreateRunSamplesRequestObject
+
+	request.ID = id
+
+	var body CreateRunSamplesJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateRunSamples(ctx.Request().Context(), request.(CreateRunSamplesRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateRunSamples")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateRunSamplesResponseObject); ok {
+		return validResponse.VisitCreateRunSamplesResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetSampleResults operation middleware
+func (sh *strictHandler) GetSampleResults(ctx echo.Context, sampleID Identifier) error {
+	var request GetSampleResultsRequestObject
+
+	request.SampleID = sampleID
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetSampleResults(ctx.Request().Context(), request.(GetSampleResultsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetSampleResults")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetSampleResultsResponseObject); ok {
+		return validResponse.VisitGetSampleResultsResponse(ctx.Response())
 	} else if response != nil {
 		return fmt.Errorf("unexpected response type: %T", response)
 	}
@@ -5195,254 +7635,339 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L3bchtJmhj8Kvlj9g+B6gIIQFR3C4yJWDYlTXNHpyHVrVk3NKxEVQLIYSETnZlFENOiww7feG994wdY",
-	"+wF2IxwTDt+179fP4HkSR35fZlUWUAABitT02pqIURNAVR6+zO98+qmRyOlMCiaMbvR/akwYTZmCP0+Z",
-	"UYujkWHKfkqZThSfGS5Fo984Y4kUqSZGkjnlhgzZSCpGlH2Fi3G7ETUU+zHniqWNvlE5ixo6mbAptUNN",
-	"ueDTfNrod6KGWcxYo9/gwrAxU43r6+uoMaOKTplxyzjO1SU7ebq6hrcTRhL74wNNeGqn5PbrGTWTRtQQ",
-	"dAoDpxuX8jeKjRr9xq/2Syjs4696/7vvTp427HpOUjadScNEsvgtW6wu5IgkGWfCtJKJ1EyQC7YgTUrs",
-	"+4RrQslYypQkE8kTtkfMhBoypRfM/mIBxlk6EHaJTBui6YgdEs0YMRNG5Iwpamd5oEkwZ3sg/G7xvMr9",
-	"Bmtt2cVW4E6vXjAxNpNGv9v7OrLnUHy2UDeGKTvmH344av0b2vpTp/Wkfd5vvf+pG3V7X1//TaM4Lm0U",
-	"F2MAzmku1h2OysX9Hs21fV/PpNAMrso3ND1FONpPiRSGCfiTzmYZTwCS+zMlhxmbfvFHbRf605YzvsG3",
-	"cNLqVl/SbCTVlKVEL4ShVxGZKynGxMKKSEUouaRZzojMjeYpHiwO2ydT/+5A/N3Z61cRoQRhS+YTphih",
-	"ROTTIVNkyDIpxjoiVJBcXAg5F2TEWZbaV9zREakGQlExZuSSy4waBr/+mDO1IAVS4QVMJdNESEMsaBb2",
-	"Ql1HjWMpRhlPPin04KIwLXOVWETWhhpGRlINuSUv8CNiRpMithPFLjmbs5TQTDGaLiJCBwJ/mnMzkbkh",
-	"lIy4iQC/8GX7AwKeThnhJZIAsmrDs4xwMbDbH0/MnoPHc1hGysSnBoiRF0yQjCYXmrBLe3w6kTNGMq4N",
-	"SwkXJL5qedRpwW86btslnwh7E2j2TCmpPuWy/cSE2ZnbxG5jKNMF0XShiRTZggyAzJcPDRqEirRyyJZY",
-	"XEeNV9I8l7lIPzXcLWVKi+tYIgm74trAyt7QRSZp+lbKF1SN2adeIECUXSWMOezQTF0y9UCTRIoRH+eK",
-	"pSTjU46rPWPqkifsO0EvKc/oMPvkC06poUOqGUmosJAc2rOmyYSlRMh5ZOmj3wZPmGWXepIbYylgKufC",
-	"so5lkaRVyCR163JP7wfSCyztrZQvqVg4/qD/Khj9QBcXXVkyxzWRl0wRbrQ/tLva7neC5mYiFf8T+6RY",
-	"9JJrzcU4KjlbVPArqSztlhcsJUNGlWVFFipLm3737l3rKDcTJoxdJVuVLeJv4O0YqToVJAZyEhNqjOLD",
-	"3DDSPH1+TL786nFnb7MouizPIOhmSiZMa4svz4ThZvEpIfiOZVnLCRRczHKDDHuoGL0AkTHPGJGjEG0O",
-	"HQR0DBRME4thAyFHIyZSi0ogKZTENs+Y43DfCZ3PZlIZlr5kKadvAR6fmvsDSjzQ5BhnbdlVWOSwBEOK",
-	"JVGY0CRhM6PbIH66OewSjuB7KhJ2YsEGa09Tbt+h2RtlBzDcCoojmmm2vJLybWImiumJzFJ9CJCENWRs",
-	"ZKwIRwyI7nZJTIy5YCCaj2ieGdLUE5TLsgy5tBTw4JSZiUzhKs6CdfzUGNLk4jyhWXKeyfm5kRlTdgXn",
-	"M5TB2FWS5ZpfspdeY8L7a28HNY1+I5W5pemRFe3xgW6nE9UpWChG2iMv55xycT6jWp+PFE0QDD9tHHvr",
-	"kT/NTiZyKnXCUqoNT7hZnNNsNrnxNh7BQ9cRCiP20Hd8z4pl53J0PuK7vjmlIqVGqhod8njCrLA3txok",
-	"GVGe5Qr/i1ftkqmUJ+YQUcFMmNKEWv0gveRaqgWoWIZN9U1rgXleWQUM1nN1gi91S/hSpajVG3PBf8yZ",
-	"+92eltsAy3be9dW50vd7FexVztgly7RTdPHRx+F7vVVrA76ozvWPOVXIKD/i/svcZJyp80TKC32e3ttm",
-	"/Tza5Knlko7F38tcKhd6p/O+LgaRwz+yxNhBStr6RmY8WexImp+BBlRQZUtYR1IlLPKEV5ckd2cauwqd",
-	"j6eYu1DGLd5eT+e2eLmGym3xVi2N2+K9CoXbnSBVSFANvdlqBRVqs80bFdpxKxKxDSnY4a0lxN7izSqa",
-	"3vjCdSgT/xBCYAnmdTdh7YVcf8+jjVi4GcOWD6B6xKsXvAKMepiunk94c9/XUTAP2mXLr+ZjwUc8AcER",
-	"YGgp0AaS22k/Dkluu9PpdGsO9EjQbIHKz0ZKWaV1aFndjHAnAIYRx3lywc2N1lb7zPKdganc+7UQy1Nu",
-	"nl16JWL7PZSEdUkvslrQnGqSSsEiwtrjNolVLtqJYtSwNI5IDFbA9oibymc6myl5GX6jmF0mS+P2qk07",
-	"siuQNT4PS6S84oUGOlDMqB2ofpwlCkQNaxk+ZXXPpsxQntXb0WdUGZ7kGVU6IlwkWQ5KHfWWUAV2Baql",
-	"aNea6MNjoxZlcINRo8AwN/vac3whxzueIrv0HqWtuEBwW1bYwNIO3Mh1az2muV2eXnN50NCorabGNWjD",
-	"qGP2nUoJOEzHlAttQnuakzIGIlHcMMUpGSk5JbN8mHE9YSkZ5zy1L6N4ntGhVEBKHmg7smIpN6C6RgOh",
-	"2DjP7I8wPyqG5Oz1G1AryUyxhKUMhsLDJcMFmPBpZlE2JTOmtBQDUTjcMkY1cw4hD+mV2zXlwgv6q0wW",
-	"OPCOx2uPMDfInqqQfm4fJ/MJQ9U3sYOTROZZSpz9z78L0BIktuSepbE9DJgLIBPjlYzRfDyfLIKrPZQy",
-	"Y1RU0WZlz2BQq0eoQJSEq2BXZHkLGJQOicizbHkHE2qvigCHzpyiacJvpJ7i21HQ4opi+GZZafm6Mqvj",
-	"BcYD5zE0E7tcWFHKEu9NKrRD0AznXDO3sVA9XAXeNtyiIp7hSQXQDgZDk3ntVhQrzE6IdaY0mSRyygCd",
-	"aimotnhjhYw15wgeU/+MPZopoxpwFlxu4VF+9IHV879yhf7GFWCKSiwJD7sA1UayW8K9zt0MF8CxooB2",
-	"zUC76pO4FOgsz0OJLo4GIg6kOfvLsiBnvytkMUunuBT2u0L6gkEUs79csnNt7K5Ueo7214jEhTAGbzHN",
-	"05xm51Ygs184qUvDKKniIxO3ifvD46GFF6GGcDFm2vRhi4LNC0+/zuSsoNIDgRhCBVyss6eFYRTcfEIb",
-	"lU+ZMPArRZHqgSa9DplKbYiltsIMhBcQcBIdle7Cd0ybMVUpQYkB7rAmTc3YQMS/efaW7F92941iItXx",
-	"XpucVLCO5CJjWodYnHFttEVOqgeiuBORQwv7cmFnhFs7suzdyhmCdDtkaZ0DAX6pyM+DAxSjkibQV/xW",
-	"MbTykiXatYesgwkrjdZqAlUdoEb6D+V3d2esEB4I7GsuTCi8w1PBdSlldPsnXJEATxyFiBpXLbvy1iVV",
-	"YPi2WwDMecnFC78N/MLvBT69oMnF69Fz2A588e3qnuD7b2hycVzZF3x9elbsDT+7DZ65/T1z24MfT4I9",
-	"uqdxo6e4T/judblZ+PwUd4xOeXtL0fhdRw2EnHJBMyuxlA9aQRHJQ3Hrrah+g3LS7QT/u8EydGwFJJBV",
-	"aojzXLY0T+1NLZ5C7cgiKBz6Jc10RDrtx8RI0mk/efLkRsXpyZMnFdXpcf2qjJLZC0uK9Y52prMJm0+o",
-	"AtnPDoI+OU2aJ2evyVdff9Vp9fY8SykCDYZUs4wL1q7hIHWKzfmEjydbavXujUzOt3wBzp9t+fCcKsHF",
-	"eJcF+Ve2XdESz3TLq46ztJDKrqMK0Gr5JB7VaZ7VcsqSflvho1l8ZIbQrB2R44yLNjmesGmb9L4ize6T",
-	"r7t75ODJo70+ibutno4HIPVhBM+QLaRIyc//1LOspunWvXdoH32kY/ATFc88ImdPD0ncs4MQM5cDkUih",
-	"WZJbQuEfK3gVjAj37ZDEp60DfIcEr0R2+IGgQ3nJyBfwvHfogdgHIUJz8pf/+J96OPNBq6tjMpK5Iqsz",
-	"I+eEqbvh1N3OVUwME5VXnBsLnoYQJsdlLeOt8g8LskbUsOBoRI0efrLbaUQNux77W+dqS0puD7WLI9i/",
-	"Hvm/esV3pwf+r4Nu8Zwd396MXOk6Nf71jP6YM3LBFpoZy0m1VKRp0fjLg1yVqD2zlEOMwWsXRM497va2",
-	"ipw7b73/4m/qZFqIZ9zVOUnQpoGMv03eeeVEMWoXqasalnuY2kueWVkrkWw04gm3or0VxKp8WMeociXy",
-	"kipuJckYnEtsOjOLyM4zEIjRGk0egtnR7TTwnCV7EYmdFgKSXDyyylvkxgXfFqhyA2FVObgyy8QRycQ5",
-	"NbU6hNtuLkD78k9XWcYm+wot7WkrvyWB2WCjLuSfs+/AnnazctdZuMOTWd34iSBTmbKsxX7M0fktVcpU",
-	"n1iOQxX5YdiJyLD7PnJfnEvFx1yQH+C7H3OaWmkg8c9FZNh7X3EVbmdQd7aDR3XLXy8EHNewfnuIQxTG",
-	"U/vZq4GFSFAvBKwyuuKq1s3rfyNTahS/8hOHsI6I/vmfm7//3//t3737/d5f/v3/+Pm/R0TJubZiU/Ac",
-	"wrsCsjuD3WbAolFzMzq4oEeqC4wXKdFG7oQZ6Wh1Bi+hkpSNFWPaQnCkGEvlNCLC8hgyCxT2wFmCMRHn",
-	"l0zpWnEVgrZpxocumAOfR7JSqH92bxDAiUZeeH6/2+60O/UGW55uFzBs9Q2vEtbbjAo3UHXVT62KLxKD",
-	"F1l72XqEAvWmeHZnFbiRQDiB1V4L0BTrzXjw07lil3w9dJ2m6R+qvyiWyVWW3q11jlvac9PKX8JD11FD",
-	"1N0jx55KgJEm+KmtbiAF88poLkAXvRGYM8lrCSW6iD1b82wx8tuVivhZIzJWMp+xlAwXji5xgQxF85LE",
-	"bh9QYUH7xi6rjrxX/IbLcV58PAGeHpIbSxINU1ajg8U0c1TqWEpGUlXJ/N4tDY8QIn7Tvk7hoetALdfp",
-	"BkJRgD5llxyXrpuL/au9yEuP//KPc/JrIsgc9k10QjN22w2AafzGHeBT6B09355GLAlHNckvfq/4wBr2",
-	"At6ilav0sUxDG2ry7S7lGT4aOPmq2/ju+LuXJJGlOF+aCiqmhMJwsEKPPJ8934pQfO+eLgiGExhvfM89",
-	"ZvVPuDvnCRUpt0ytztPDzYTENDcyjlzsfPH4A010IhU7RNG2NJdvje2ItMd+wDqU92uU4pKJepvNt3Lu",
-	"0ACjuAAXUsfuhL0hGdeWD0qi86n9j/AZVnGAjvXMEAe2H6xYnWWvR43+D9vsCt5/XxehCc8xkts1NUHh",
-	"FIy4ZCcwUyK8gcG4aE6g5uFqzosf7nxdgX2V6guklDD5n5iS5xMq0syBY/UY7CPV664xTtmlFZE5U1ZZ",
-	"nBnn9FMyzRMuxoSLERfcMH+S/lI5b4NghCqJV2uzSxbzoJBEFex/ldlXhJdSoXHY7Zl1eP710K/Dorpb",
-	"uwy+JV1llU5WpPIq3wAps2oTthMUluZAjSh4fKFjFSKU51wl5SjoYVRRICvic6DfrYintRYlSztfcL1r",
-	"3MKttEiw42+vRQJZz6dTqhZ1pEewK3OerLF7oD3E03r7KJnRsfeROSadUY1ft9fz4TXX2O2luooA+Gth",
-	"jcLTbgaR14KtSHvotQHnIqdjIbXhiT4kNPgIDv/CJcjNUoYPaQqJiodUREiipDQgdg1pctEK/BvuAbS7",
-	"d+AR7+NAoWBTrHcOmXm1+nLAdO2mYF6kO4UUf0uRKVn2ImylZENwFNfGK9q3mNjL3fVeY5TPbzk0kI+1",
-	"epyi49uuufBXwVn6UMLqaXU7nZ//3Fw6VNCMK6De2698vLXAi7T01vtBbrbluQehcufhzPUJf5nVu/AF",
-	"jclz8MItd4p8aJ22tKxLgOB0SDqIz/6q3YV7H+/WMt4EoCyWWlzi4JjWwDC4mCvYFa0QiNp7GCDUWoJ6",
-	"VugIy8oaRBRBim2bHJVudbDYzjBX6ByVq/iwiC+DwBxL6dqBob/6tOW/zjcNy8boum0dtuWa3+Cop37Q",
-	"4Kejcvzg29NiqmLzjj3uGnRYMT/fgU25Yr/bbrwR5RlLz0vT8mr8YalsYr4I5nJztPzPqNakWfr/pSpC",
-	"EfbaG+PDlgWJOzOo7WbMuktr1A0R2zfTzF1tBrdXy1f16lsqxk7L2VKl+nRqSCj314ju1Xu/QZSvo3hP",
-	"eZbXa9n+FzKCeFeodMBZSujIMEW4cEoAaRaxMb925BC9vf/zP5PUDbF3SLrIY+hQMwHWkNul22wRWPEt",
-	"o5mZ7EjAygvoKbS8AFJM08WWdBjnff3bhl/CKb68fFHcVHWHEcSW1wWquABqKoLQrMibnSKnw0feW6SI",
-	"ptMZGgkDB+yXB1v5X98vFzHpRF8+uq71yJ4459OOOkjg3/Luq9IUGMp86K6NhzIXaRjoGpE4k3PnfJ3w",
-	"8SQu3Kk16gO+XS9Grw/h2F6I3iYraF3Yx46yFUR2uGgPL2j5/dVdq1tF8zxlhiWYMCxS8mNO4WZiIrOL",
-	"7InQ27ds69RQYWFmSJwobnhCs3OgCDFp0sIytLcpuHTJMuBHSTaHcp2cvSbd7tcHj1o94t/xtWO81m6W",
-	"w7yuzpPbqoSVzd1mOR4WEVncehXrEh++lXM7xwINcB64oHjPJwsL8faaPArm4ofq47/DXTkyTPAlu0zc",
-	"n4XqbaO6M1mj2p8cf0t+1yPF4vD+ReRR+9HPf/5f/2H/7NaT/bh2srobH5Fu5yMmXMFjy9DtGlYuU7Tu",
-	"0q+e0MYw6JeF/LiTMO8jom9MO1lOTC2l+h1yV5wIdH1TeMQ2Jpeb3f4QzOt8u3OqiXtle4e/n2O42DrH",
-	"yb1SnX0N/gXDrXhplwzkdvljfsnqh9rR++xi5VeG2V7BuAMh2mUFBNJyCIF66bhi/C5uXxRe42WDdnmC",
-	"65HmFiZsFMC2v/kOO2/K2PLDrl9rULXtnvEcS4N8JJqHdRM6N2RXVUnAdn6vILR61fH11IVMddpPHrdr",
-	"UG7TwG/Zlbk9am2fVXp3mFSHMMXR1V4ov7WlmkEYORGTBfk1GXbIF2TY/fnPV4ckroRUuN/dT0UAXTwQ",
-	"1ffsf3s///nq53/G6PCvD778stVbSqbAkcF/FUzRiBrFuFtqZrCnF3604NNrPyJ897ty2Ouo8RoK5tR5",
-	"gt5NJFEULamlInYIellxjL5O5YLQTEsC2XLx38ZLyti2dSSr2tjfgjrW7X1Vr4+9USzlICLcji5UUW5b",
-	"RIsaqG5uTxHKdZ7BmyukYTNtWFar3ex1lzqESGnK34VU3nX466bkD1SAq7GfuV5nl1+VgXJ1yXawveHz",
-	"t7LA4au7m9swi/g2N+UU3qyTFddYA+u8rGiiWzG9VQCxvLklOcPv4AYH7crCd8bETQpv1eOJdjlLlNKq",
-	"5W4lIxeMdJiRW/ponWyK6HFbZTQwJm5xU0cZHdcY6mPIxDiHYIU4IjGkbJQf2ZVRdIb1WSHhEp7OJCZX",
-	"+k8/2p8EG4MDCP6W53av51yUQ+XCmU3OvQUqvikVvN7UvxpSG9jENvJ9/1zwznlp9a/V6UtzmVUA5NBQ",
-	"Lorwp3jEWZYxVR/cNGVUnO/ozvQ5EjXaDtbWlSOiGBa5Y0HkD0VXXXpznOxSWuOq6XM2U/KKT+34uhI8",
-	"WGswjBwq+NsY5JzZG8+0gaHuQoXnaY2Psz5L8xIcmHjlA6Aun0mARKs3YjOJcVx0NxITouymi1r4CbZy",
-	"b1XF2UqR6c0hp/7Beu9K8XM9ILBM4qrf9vkxeXLw+Cviyi8SNJjoVUvjOmMa1k5hwrjS1C6/mRfhehGQ",
-	"0BmTzt6+gnjrYmGfS3Cl0Iy7apWRK5lYU3vSVXHYkmPCVp/bl2vJliijUtaWlCQzimHuNUYBeMBJGZtq",
-	"Usa/bzkptHViybWR5MdcGlfiAl1HWI3lcaeztohBnTvezvPt27dvCD4Aobjt0F30uJLvetCpjYg33NSl",
-	"Pp5NpDJEozPcUxl/f+wotUs1rvznsufmu9MTrxos7GaXB/O0O1eiD9z5grEZU333TN/dkNiR0kBb2Czt",
-	"wK9+j4HHcIPFsHJx+j9tiSBvfX0K7iut1sIHQhPrnFv2/aUr3yeU/N3Z61fkDb5kuZ7EBCiZLiIS71u1",
-	"UO8P8k7nUSLgP8x9SmSWT91X8UBY3Dw++x6M3zE+wd2vffc6nTL3OGAyLeu9o0CwGc5+Xxshe+rTBnZw",
-	"wryT6sJCBCSWqAxly+Tc4qcDyISPJ/YjGnRYWjDJJclPuaqwmG1dPdmPcYHduVurFnyB1LIazBjUqvDh",
-	"jE2rfA8Z8UKgkwqGGRUXJJFKoRl9b5ec/qr3ubX62wpwTkPetxxPVApNKA1EH5dLU4BoN0U6cpFNO95N",
-	"pPMQ4ZSyBOy1EZkppiERBwsBszJAyrcdaNfkrt5YLyyo1FXUvP7IemFJYdW+OQnmqX8axWFdp4y9CryZ",
-	"y7b53SKBi7UVkwUlx8wa5KgsMwhjcHFlRVjZtrnjMOBR8TJ+PnVDXJdf3MbAdBfA384SjAbbFRvwu8ni",
-	"kHiQWyrqoER8jwysI+x0/zIhu73+rGpPJc/Y99BJxG12F9XfGSr0hsY92oqOMru0yh8XxN71HSmGtwGt",
-	"5N3hQa+pTjZyXQe6rZ4mropDROzVLn4K6/3UV89SruTEDfbFojpFpUbWZgSCoYtNBAWjSqDWH5fYua6A",
-	"ygWhOkgavoO4yFsZFLfJd/bp/7umON/C4zmT2GmlPspgx7yN01xg1Yeam+p3sMaKaiwzgk5CIQD86kQY",
-	"kvtHpLSJvty6voZ4DrNbMRWqZ7jPx2ffA428bRjo9pp1aSna9Z0dAkflWk/IR/C83d0Fp3ngJ6jJ6wSJ",
-	"d/vhfBbqje7X3eI5K7GXBeSKe7reEx3uoQROVOYFbTQ0WxTBsT5p2tWqII78c8aUj0vcXnrdgOXbYlKt",
-	"eW5rAG5VWWatY2h7DLznuOhd/TF1QCudIysBx2ugd9sYhFswyE9JLUPit+mtwl38MZStiK5Y1t42krtV",
-	"JGTCqEWIhGA/LMpr70Qfa9b0eDfPbEE7N1DKckNrrtetjNub3Lbp2sD37jqWtk27gHRNEFVgBdilmMHN",
-	"nKnE1HKSYHcbwbldo587oHj/mrwMdQCtg+JZItHa6wVIlQvdnytuAgdxXzFaMqF+me6VTrnYUs6EiU5z",
-	"od+5sfELnOAUx4evgA/oIvsLvjvCiex6vcBzh6EPt8iKXZ91ej9IUh7nTTmJa465Qgc/Aa6sAPUGDTl4",
-	"OATvJ0WcjwUy2GlWrQ2KMWLYlQm8a4dEyKLAaDKhiiaGqSLlwNAhFnMjI+YKeiVUKU7H0F05V2IpAqvn",
-	"raNrQrD+MBhcdTot++/X9p9v7D/H9p9n9svu88Hg6qvna2oVvrUK8S3l8lskQG4vV66N9sVeqNsrUUAD",
-	"awR2MAXUa+WaJYqZNjmDZm/glZBQsZ+bapfLFMtUb1kBBGeMisLiuJEb89/giG4nu3ogbmeKDHGuxiAp",
-	"MTODGjLnGcR7lSaVQ4KN8ah2FcsNeI3xQ55yQ4yiPGt/zAGW0t3BJtmurq/ZmsruuJBamCsm7pIN+RrC",
-	"N4bv2nm/8Q/f0tJ2Uwm8rcrVVcssW4SU9dWYoO+GJBeMzeyJT7ko63VAAAIUTydNSmZKokmCZkVR5cjb",
-	"ict6y5BfsmM6c+EL3QrAb4qnKwXntrqOOMC6anBG5SKpL/7xVuVB14w5F6mckwnLUjKV0D+BCtKNOp2O",
-	"hwgU0BTZAgsAZynTxj0ACVMWxvV260tv0N9Fvwv9ADdK9fX5weUhBCV+ipsfFPkJFhiCzN+xG+wgVRz5",
-	"CJ/FR/kfphbYt/NGi/ouZHXV91AJqqu918Qind29NR70StnyWyxSs4wl64ubYZlXnKFAYcjjg6JhN3NE",
-	"gB9sGitFlScTzr32/N+ECO9qzNrJMjljjWidOyrokU8dXRrJLJNzHZrZ/SC1rQtgwWG6eya3LYNRXfiZ",
-	"m6X6bdhKoPqLL8R4lq7+VDYrqP7wQmLdjIBofQLj167h3cxS/HqiGbbJwc4ccMmKN7BcDNcua7U5Krx/",
-	"vkRJSE2n2LoaH9Z79dSTi/OQW9f0wbmVxbM+A9c1/8LTeqBXm9osR0MLZjkp1lPAQlZCkuKi3rZe6O7x",
-	"8VUeUx9q5Zvdls96b3BwZtuXYa16WjcyqDCGvmLE87mrRZxZaTsub2H1DlT2WkeP4BqHyJHnMHOoo3Va",
-	"T2hrdNR6/v6nr69b4ceDXT52e/X5NN/Vlv88IlAANBdWbZFpEcM3He+/gNhy998fZrPp++W8n0cbi+D/",
-	"f61/+/6nbvRozXqqhUB3DCiD8p7dff2HXhxh5Uc7ynJGOjl7GhHdvNojvyZJh3xBku7Pf76qSc3vbJuY",
-	"293ywQsu0ps9/PBUZKeHoesuzvcl1i2lF0AohytHIhZBwx/sC+XQ3wUyIHmoaQ9QqeZEtS/EsiW3cqt7",
-	"gy+6T8/h/euosVwmdUcxDISEevJqZcA6RrAgtKzzikECF3w2Y2ltrddVs0E+PadDfa5qBv+Xf/zw/58+",
-	"+1CWrw9qAQaxinqFMNct56PKon1UQmWYQRlsN/LgdrCtu4rvwtmrwHnBqDYtlHe0L4Xa9hhKckikIGVB",
-	"fkBWV5Uboz8Hoky+OHuqD30x2WQiJbw9lS7i2PU9H6LOo6c0y6ABXD4lcjQQdKhllkM0YliKUd94cMD9",
-	"MZJbD8RSzWCrtcYrFVPjaqan5byNqNHdv8J//9CD/y7wX/dJw3/t5rbEsQLsr3D44vOJuPz98ufe0hd/",
-	"v/x5+YGzyhdHsKxrEO2TXHGzOIPiulh7hlHF1FGOVYmWqJH9Wir+J+CBffINPEswLBmsPy4uuU3AVqP7",
-	"0LXVORpcm7jC0wApUBVfAyRQpVMu4kOiGXPZBeCs5FI80CS+avlr3kKbjTscrA5syQcsqUT7iTGzxvU1",
-	"SHMjubqlIIIdQ410JTw3F3ClyjaflYYGxa2C4vN6IGjl55XwgsiXcuOm6D1aFjTGDqIud30gsMEftlXR",
-	"DCTXolcCN64zpI7ILJNY3eaSKQ1tRV2KjQZMycWFkHOhI/K7Ix8Ci005Kua4gRiIhw+xtL7rm+q6cVKD",
-	"beXaDx+SMre+2sKv3At0PvLNVH0P1YjMJzyZQMWjoo17quhcbOyuOhAb2qsCDKodVu03S11WB6LaZhVu",
-	"H/a02dRzlSy1XCXPaDIZCDxQO1UJ5VIMUWzGqHF9Oy0l8baLGKD7q1+R46Lish6IFmYMYMoM0AGsDy7o",
-	"BTtPYNa33H97+vyYPHr06AlpxshR+qRQvOK9aCCInfG7t8dWDZK5meWmTUorLlxijKSzyxNjHNXKqwSp",
-	"km7bFb1ynX/sj67i9cmzZ89aXz0+IMjAdBuX7YzfCVVqQV7RVwSsvPDO4tAux1nvXNXCpdK71IkvrhVI",
-	"TcPYiFA7ynIx3sA4qKQ0exDuajlqHBGg5oQSbXctWAY7ctZyggzO3phRrhlxWIHQ16QZ14ksfSzdFe+1",
-	"7VK8Q6kYygIpyaTGRotzlmUR0ZjkgM1Kcwu/hJpkAlrnAmezYwFPszit7GpTV9sRLk4qE6Q9BcyQYA3Z",
-	"IUkyqMdN9MSCzA6kDc8ywsdCwonBZqCSUirhXbvLiGgOydnUMEVcJTxNaJq6N/DofcXJkvzpol6b9gXb",
-	"dOTbogBZwtgRCwm4geV965OuZflfHpCjs+OTE5IxqzHoiKR8bNEUyqC1Lb0/t//07T+tOMItUcyygsQ1",
-	"6l619wveJU0Uf0hcXu94r02+Exz6G4AXDRVEO1rgdaOA0CPITncIafmZHcTVTYI9AVsZCCSF8f5lNyZK",
-	"WlHDUg1NduCBRy7IFJx6FriCDYRUaOXFefp2IR/wA/kA5ooPZKyoPeUPA/Gh1WoV/7cPhuyUfAjPinyA",
-	"SFFgWRF6pIB7QVlp927IfMkH8uLk5RlYDMa+Gv4HfNG3RnWsJWQpOFKVa5MPlrdoQ0ej2hGQ35TMRh8W",
-	"MeyFecYNjNyffCDwB9cGqL9dGIhqQLvsqLmn9Dg4wBkWNxDPKkKD68IKCAcQd43c0ylHvobyO7syTFi8",
-	"GIgaGaNPqDvKiczAnfHwocVnKdjDh07knGI32CnqW34nA8E1LIGlhF1Z0ZebDMoiKaBWVhCAUpW6oB32",
-	"ac9dM2YsG7Cs8PWMiaM3J8SLbD4lYOpayVB3V8udW9JYSnN98sP7eCCafpxH7Q6hYPB0tw8BBW4Gew1f",
-	"25d6AF37yslTy72EPSmUtbSlikfekBaRKc0sZ7KU2xNXONxLecHcAdkVHXS6h8gbuP/WkXQrPTlI4YLg",
-	"6UdtEu9PoETlnyyR2Icql/jnlBnFE9/Rbl/OmKAz3l7QaRYPBDB5Id0kzdgDDgCx5ykAdG8t0B3ztKFh",
-	"PFnJxG3GcFRIK/bdt1/8UUPbZCRKAxG7nERLkmryZWPfhA8Zfl36bN9SY5dOOJSp4xpWTrEr+vJJp7sx",
-	"1ZC1x8Cu4v1COt3vVQuTx6QZDxqDBlSnBBfURGb4/t4hzn589j1JWJbZabdOXoxILGKXbDGkli/OJgsN",
-	"pQTBOdAEmY6QCaMpAzDD1909b45yE32172Wq2C2nNNbb9dyUFemH+zFnatEHX5Nd24yaSZ+nyGViXET/",
-	"JGXTmTRMJIvWb9kitou0yFf49qdcW0FSuFTLEPQwEEq2XHvTg0IGhm5MEu+7q/bSowfRC2HoVeSys62a",
-	"4pgpsrXARGoZ1kGnc4iXBwkX1wNhRY2WG22Y+yRWKxLlWZHfYMULnjDShH7ZGFgZNE/x0sVAZNBWmooC",
-	"bX1pVkoUgzYwvIQRuWALELoOej3L4B53OqgnWLoxEAP0lAiaISoNGkXf0rhMw44Pnc3ESmJjuxB3g51I",
-	"lEl7hV9JoPZ2Mie5ohWsSPjmusLOC90FpTTPdKs53Vb0DMEnBQN50RsaUMICqn0BVnTQLjOeMJfNiXEU",
-	"DSskKs6Mb86BidmhNokWZe2iNNuddsdF6Foa1eg3HrU77UdoG56A4u2pnP17zOqMuELPrRzT63TsrcuY",
-	"T81OoCG4JjTjl6xNXoGc4ilfuwjt51KcpI1+4zfMfOumWoqn6nU6rpKLcSEDIcX7o8tmw4t6k3HKVTYG",
-	"1XtpH7BMC43HOF/dMMW69n3vAeyzHVotGv0f3oN9C4vAN17wSyYYGCkNFGv5ody5RoOH5xlrgfxGSXv/",
-	"Wa4xmItdzaTLb0XFaxm+h/gIZJMD87RypOU+Zi7VBdqyXLi1Jkbl2uCdWjmTl25lN56JXdf+LKN86TSW",
-	"rdArgHcz3AfoA7BNi32sPYSQU689ibcTRrywUihFAZWYU02GOc+wWdNW194Nt9u194vcAdDh0q2c5Zcf",
-	"kb8/evniPuD/NlQdN4EexactaYwzbqfUUMvPCXW/emOLY1mWX+ZKwQYfdx4NRGl/Xz6V+qt/iov6q1Aj",
-	"mBu6rzH1EWTJvvXo5rfOkCt/J+gl5egG2HSs2FPzBpJ22d0vk5xqT/XhQzDH9h8+XLbArqhyUnnVBZgq",
-	"RmkTwaCEw4grDQ2TUqawqWYcOFVjsFQ4UdaxfUGGi4GIeRr+2CbPeQYqeSKnQysCgqx09OrpIYktMoNg",
-	"yoWruY/ivZHxQBR1+CMylGZiaW1lBW3yW2z1PaNj11Wzj60ykFWySy5zPRAzOmYPNImD9lUxoRqgAX+7",
-	"ojmuD/oIl3u49IKVxeobapEj32ycayKhCfkhyBpVa1jK0Bkr1UDAL5amTWnqAIKt3t3kEepDnToUesG1",
-	"OfaZY4WsrCHM03KJBkjCPt60X43a2g6BwojQ66h+2DL+6+7GLPJx7m7IwuO/3ZCV8I11YwaJZ1sNGuSz",
-	"rRROpirjFtsqNzsq8QHiJGrWYDGnsoBtYnRW539BTc3sBeatm93IO5j7DR0zovmf1s7iy4iXExURX487",
-	"QSGUXqX2SU2m8OrclmlX8buopIRko+iVV7ewogfe1pdKA0t/f49Mr+xuWMP3XgsGG7K7RB4AvO9gG973",
-	"DS2qOMMr3Ztf+U5QZzdlKb60Bbd8LtWQpymDaICD3pOb33gr5UsqFm51+q/EzQv+fYzxWtwqsIuAhzt+",
-	"/T5qrBgbITlrq3ysKvPf/4mn1/cgAUAWBOrfI27a5AS5VOH7kyJhUckvXY93ixUp4WIg4mobzhgdmlw7",
-	"d41iRS+NetkQE51X2FrdwZSP4NU/edq4f/xaJ/+7Bo6/bJTqHNz8xitpnstcpP9acfDIl8nxHUPBg+4c",
-	"8ZBq7IPR7xs798EHshWObsZJb+pKrCSeEnZpVWM6lLkJwsC8kqZyEfmkARDgnUMhcMiA8Wg2YyJtSZEt",
-	"NmHiEWzhF4mOsLQXcq1GDmDSn1HyF4CSwdUD11XiiLzHQIdM6zBwB5SbZdK0ZxjNdh+c0aqHdg7QHmEy",
-	"fTm2TE4TSt68+g3hUys1bsCoN5k0b1795j5xCtaw76BQI6MPuaAon2xj2YJdfsaivzoW2YsToE9E8Bbd",
-	"Oxfzt/weUOqsCNNs+ta3Rb1JMqXqgqV7kQ+DK1I6XDxcUfJ+IIZUpCho0qJJMZlRwTICNdeBBSJqFo4i",
-	"igZ/cOUMhKBTLsZ+/CJ+L4gNtKM7tf8m9D77/hOgt74cf3F1K1P1Z4T+hSI03pv7R+gyvgeqKEu9C1Iv",
-	"4/DJSiCq3VM+I0aSbgf8xS5qLIiAdRuGeAgrqA8EXa6ej9ic1DTipIbE5fcxaTqbEMaQ+uDavTZZcSm3",
-	"yZsgtokGzQeL1VGx8IGfYKKdAGcHHWI+ocZF8Whf2FsqTxQOK0kqAwGtuDXYrZE0xVBfPyaaLrxrG0Mm",
-	"MwgWy43mqatL64KKWToQUF3ZTgOEjFBUX5zF2ak5GCA54oY0y0hhNw+47wfioPOkjmph/YcAKB9JtwCx",
-	"vpHp4s6k/NWGQdfV7AdI879HNaOmP88a85qLo4bQcrjzUPnUhy+44qf/l5HdzhZk91iKUeayBw+6W6zp",
-	"DV1kkqZvpXxB1Zjhe4+3AYDOZ9jv+SVLOX27wPoRB73eNi+70ApLqZ8Jw83iX60ZMoz+giBfnxUQsJeQ",
-	"C2zJYzbwFFVU6b6ZnWyWCV9KSNp15A3yBeIZOhLP/StGktiFlDqG5JN+IThwINBWgm7AsgA4Vmh2KUFY",
-	"tLuuVAnB0tJcjCHDY1PRZRckTO0C7NgxaR70egVRloLttclRhaFgjn4mxZip1Z2B0+9JH+RYyFfgmoy4",
-	"oFl7IE6hRpAObT6QWiLkHJmnriPxWHLrLsyqd0/cq4W6PzFhX2vOPS2qwX8m1p+J9b0bx1ZC4+/aPha0",
-	"fr1Rf1+yd2XoHC6aEssRBuYXQaPDBfh+1kUpvHRT3yMaBx1x1+i7bv+f/Z13f3ezLEgUqt6VUNYIugTX",
-	"XmBaFIK8WXoIbugREWwO9891sQ7aZ3fb5I3U2L5JYB6a/Rsexkwjq+ilfDRiCtRLkDSs+rR85/3Q2KT/",
-	"Kvil2et09w4HgkEIhyq3btmxS+V0KcfArkOppBiEg4N1IJyFy66tXDq7oolxhaCW1vVAFzXkQXcdCL9Q",
-	"4dRelHNQZrC6Ya/T2WuTtxPF9ERmqSYZGxkCcspoIOIyGTWGXMrAv/tAF3mcPrezUpFBT+QctpBlWLqe",
-	"uI7KQaIj1maD/XGr+7rAdCsv7a1XTV/6eKD7ED+qDao/sfjhG2yv0iwMakpo5uPkl07+sDjhSo/466jR",
-	"Q1J1z+tDtHPnJ1WlaTymWQCwXshkTW/QN9RMfLSNZyRxwKn2f7LX5hoKk1QPJNpk6/yFS2ufha9foKYM",
-	"yFNQI+jCRuF6hyIPlmjYlZlVpS93p+9ACIt8+RdZBN4MF1YBxZ/j9fkGSEnrAkZn1EzK4DZXJXM96u0S",
-	"krlMO/SMJXzEk4CcBTQODaNDzYRZF3oXtLcoV7Qx9u/9X4WMl6LnZ2fLXx/TXwt/GrdHZZVv7TEJ0rZX",
-	"fJ5QdcS3/GkGRUXKVnvOZ7IHMtyIQ6Ju0L9kIHyKXxGIV9QUcakZAbngAmPRFRWaJhgkT0mv0x2IKaNC",
-	"B7nWLhHZZzVjDym0fYmgVgTmuA5zg795+1aZRemEWamgYpUmTbsAqCQQEZplQSdm9mNOs4gYKcmIzQcC",
-	"yw3soc+GZ5nz3ES+PICrgBVa5ar+jj5RdD4QKTW0DDs0EwVFiud00SYnYY4uaR5cXe35WjBOsIKDOoVC",
-	"dkO2kC6l0aW/gMTaD5Mrp7n2pS4wwMx+tDAtz8nXMMvFoReBLUgKRzN1vfQzOmQZBGdRpSHYciCaaqUZ",
-	"IxlLTASOC0jGeFnMXPqSDa4mhJ7YI6NQqaU0Cx+6O0Z4WpHPw+44mDP9KxIkzQ7EGRMpFGOo5tEaSaZW",
-	"aVDMgHtd0xHD9Awsc2JRoywLFXTj0i7PawrLv2AzrKhODckY1Yb0DshE5kqjD79o3mu1DTFmaqa4AKMq",
-	"JWffHrV6j7/sh6m7GA1XAJ9QTWZUaSy/PhBMJDL13j/S1NJqN4YRPaMJhtRNGfYRVylTHqJTqIe3d4gT",
-	"DcTx2feViYBhlUnMukiKVXSOOd7DhWFYh+PMKqQXbBH51JNiUxGG7xUOJF8gIMW79/ChVHzMBYW6F/4a",
-	"PHyIebJW6yv31et0l1JcYBXglfRiuisrg2nM4fGesllGFzCtylkMRe41SyxWWIiWztXqdrxqbcI99SGR",
-	"OHwwSG2tbrcgAFyQUcbHE9N36YAw9ZxCBSYCZ2B1aEQqE3SINnzKwDXqc5MU7MQqwyBDjZkBa7sdpYn7",
-	"PmVGLVpHI8NUvEf4yI5cpO+MuOB64rsZwi6OysnsXXbEyZIUO8FjS1mK163ODQaGC7YoUMtenWYMKZ6J",
-	"voz3BsIyzUqhD3ZlBXX7ZJtgicRjFFxaVmrvk+Jlf8ktcrice1ciJpFTVjboXbmeMdKxOCJxOTGU66qk",
-	"ezU9h0RKE/s815g05QyL6ewdOnd+vCxR2dVZYh1MC2RzyJy4R5oHnc5eIfTCBeWafPf2eetr0rT0ESuL",
-	"W9RpITpOqbqA1DGoh5PuRVAy4aD7dWcgmm7rrtEu9PVO3e0eNOJD8uK5PaLj0xfPsSwBE6nea5MXXBTl",
-	"S+FCDkRRUwb8Pr+KfeAAHg/EKVgK52sSYhNfKG0Q/tDGfeElx1QvmNfVZMADa5NjqLCgC8sqtt0VC6RA",
-	"rn4MlmGA4iuuT+iHMnxCybn9iNQdPiwVlimKy1xwAYVhFkyTDyT2I8TwAd6PfZ0W5Ajlw56vlTWA1nwJ",
-	"rwNDKl9GVld5FaspuGoz1eIV/i0hp5bakcrPEfnLP/xX0lkaoagnUbws6/swr/8BxkEgnHMAiZDlLCXz",
-	"XNqpbya08oL/gYygRUKEFYQY6ZAmPoKiWHcPq9q0CEYU4GosU1Zy3iZFW2Zf3mgGxh/7o65SeCh6URwb",
-	"4Ks7hVDiRFseIKKnkIya6iDV49jz2iewkaUZAng1nQgbFM2AaZZmCCC21yancu44rSvIYPl1If3YkTCK",
-	"wsIHm2gCHoTzAvdzSFGUUbVYACICPlipfZZrRuI2pIOmLOFTmhEoYQ81MjxdAyIsgErF3fZj1noU70VE",
-	"SCzuJXNNRaqJZpa6GQmpo6/oK0tQT8QoLvh/xi9YWJcK44axmlYBEYj40eDbFSDEOE4D9VmqCaWWyEIy",
-	"MwT+y/kDTSxOF5QVbha+LsIyPWnuQJp6ECKpoUWh7AKG+Lsrz2bh6OTwkr2jYmBln6IgGRUBTXNGFUvs",
-	"7BjO8w0PHXSefImyUFDdAwTsiLi+9bv00iega9U9D1VZ8M4AjDEHxMIYpESEY/Mv//BfMGStELOxTKQj",
-	"rEi2pIKqZS7Ax77yuNNxIjd+DqPecN4zV+vFqh2ulCRzOqAVAIDXQTEJCDYTUrSQJqBt0xVHJCSjC5Bn",
-	"hhLbloPig+afoATMAw2DYrKxCrwQUGBPuRpEWOSR+GgFqCeFgGu327GHPqafXMFe+gMRx/FA/MpJJDhx",
-	"QDtnE2kk8PZWlzQdg1xlhHsDYS9p5HUfVAurVN0T8KjA7MjTCYisgwOJBLfPs+hFN+q0H0eddqfb6UXR",
-	"xic6T76uf6IXddsd+0Sv87j+iUdRD5846HbhCbwD/vcIXn7cid61Op2D3poHuo8e4QOPop4D6BrXx2ku",
-	"dg7YCOT237JFY9X+Zm8G3LRm2WJ8wsQealdOnwWP7hrr20cmaO+ymuBqlXx23bruIMd927Wt9Kz2UnJU",
-	"1O1ct8qlxpIfmT5dLrGQv+3qpGUhsMASKOsWFHQB3g5oZS/RewsKyoNQz6jh1ZvqAKuAAP6NlTNTJJFQ",
-	"175SyL4mPP4mh1/3Lvfl262tsRaDgcKl8fnmFapIx21aqdHRauV08oFYscRE2CjDveRYgzcVeHXVeVwD",
-	"b12dxl9TERpMAL5UDNdee3GzFQ5hOQKve+EXRx25aoKwavA2Dr6iQvx1tKVPEfw3uXBORZULDFL87E/8",
-	"7E+875QOqaFWsUPkERQd9cgcBnTlm6Juw16tNS6IHVL/17shPL3xESbUm/H6sGIvumP4SmlbcAopGE+9",
-	"icF956xvqL8pljB+yVxWVgmDdRWhbiHrnObivlOM7bLW0+rPbr1fQra/s+rj5b0LFMPiwtv5+cI8KK1z",
-	"CFxXVKRy6uvQFn6Mbu9rMuRG75VsEJp3uzrFLksfG5BiPSzksCVPFdnisFJKHH1WIAFaDHP+j4GYUD0B",
-	"vEPnVybHmnCzPsjqrWtPeh/SXKWH6SeWuCotbtfgMRxTVFaLcAeATU2tTvpLx/LPbP3+qQzgti8KHtAY",
-	"Ryq2DB/ApwvunbKM1TU8WkNfTqG0tg4773JTNZt1unull8eFqrrkMwjJLLqDgEUug9qQdSW7D+pIxVNY",
-	"ricVNwcR8fTWIUTYHrCGsx+sQgvB8jnE5heAJXgUH48miolU31MBD6dWY1Dfcnp/EY0Rls8Jil1Buu5A",
-	"yBGJi/sfpB/H0D40dtarokeqU5GnjIqgiwY5ewojlY7v2L8R+3YJabDcoHVwMWGvs3cIYR3QcN7ZtDU3",
-	"hBry8z/1yNlT0pxTJbgYo8v25396BF9iFNAeuB+wfvHZhM0nVBlooGFI8+TsNfnq6686rZ7bzjumzRhU",
-	"AAiL6bZ6uhw8It3WIx0NRK/V0xE5bR3oiBy0uugd7XauSBNzW/bAoLHUxNMB1m/TRRO5zg1gzBDSFG09",
-	"D1cbfCrmOwk453MxgW/p0iZHZaV1F5SOxZIythymPxCuV2Xq/O0jSBREr8ZcrhxOXevd/kDEeB7gkYKq",
-	"oSCQSZyS6xIIbXJkyFQWPZ7LXQ2EvdiHJC46Jce+S9O6ZtJNQRV4u4yHBRRYtYcIaEUcQ48C+RCMSQmL",
-	"XBxm0IJJzsVA/O4Yi46nuWIatcOl1kzVtkxnr9+4gAOoPlWv8GGb9d2rl95NTOrmaqb3N0fYJ3tLEXap",
-	"a/nn+qHL/ainVCyWcTIqxSDozlAloBFGqoWNrNetMugFW1OCtLe+BGnvE4chIz6t0XE0U9BxxqJu2X7f",
-	"+0BFGjSh+Jwkd+di0VPFR8ZLHMvNyCVEp/Kpr6m5xMzt4VQ5730ViEGp6z6LPYG2DZ3XrQD1m2dvSTnv",
-	"cgXuki1ErnEg1S6EFcADUko/lB1cVB6aH5GVgT+ZEbzt9guUiQYiEIUQzlERoeFGA9EDsYL5RitYjwpN",
-	"nxCmm1nefVojjECtb7vqTcxvbaGozzzwMw/8f5gHfmx1MyANn9nYfRSVKUkvli0D2n1PZcuqXTKqfYp/",
-	"eG/vkZtwGR9OVtv51vbwJc2gpeVeO8gvy4WuiZx57ioQLjf81cBbuApLDEMbxHalWryFyeqga4qnOStd",
-	"JSYqHC+s3bM66FLj36CyTTWJjs1rXsbEbcg+9h0XPWvmKmhYTKBfMWfhsnw6Vc2ob05c08Z2SP7ALFRD",
-	"Tl1jJ58RBX+6PkOOUwftb9rL0SwIlvfX/ycAAP//",
+	"7L3dchtJti72KmnOmRDYUwRBiuqWyJiIw6Gkae7RD4dUd+/jhjYqUZUAcljIhCqzCGJactjhG+9b3/gB",
+	"zvED7BPhmHD4rn1//AyeJ3HkWplZWYUCWOCPumdbEzEtAqjK/1z/61s/bSVyOpOCCa22Dn/amjCashz+",
+	"PGc6XxyPNMvNp5SpJOczzaXYOty6YIkUqSJakjnlmgzZSOaM5OYVLsbdrWgrZx8KnrN061DnBYu2VDJh",
+	"U2qamnLBp8V067AXbenFjG0dbnGh2ZjlW58+fYq2ZjSnU6btME6K/IqdPl8ew7sJI4n58ZEiPDVdcvP1",
+	"jOrJVrQl6BQaTtcO5T/kbLR1uPWb3XIVdvFXtfvdd6fPt8x4TlM2nUnNRLL4E1ssD+SYJBlnQu8kE6mY",
+	"IJdsQTqUmPcJV4SSsZQpSSaSJ2yb6AnVZEovmfnFLBhnaV+YITKliaIjdkQUY0RPGJEzllPTyyNFgj67",
+	"feFmi/tVzjcY644ZbGXd6fUrJsZ6snW4t/80MvvgP5tV15rlps1/+fF457+nO3/t7TzrDg533v+0F+3t",
+	"P/30H7b8dimdczHGxRFK58WUCd28Q9z/TnjKhOYjzvKIUEVmUmmWkjnXE8K1Inkh1KpdLDu57W6e+s5h",
+	"2OeFWHWm8kI87In6ZN5XMykUgxP+B5qe4/abT4kU2q4mnc0ynsAB2J3lcpix6e/+osxAf2rZ4xm+hZ1W",
+	"p/qaZiOZT1lK1EJoeh2ReS7FmJgtJjInlFzRrGBEFlrxFM8jNntIpu7dvvini7dvIkIJHgkyn7CcEUpE",
+	"MR2ynAxZJsVYRYQKUohLIeeCjDjLUvOKPXFE5n2RUzFm5IrLjGoGv34oWL4gnhbgvUklU0RITczSLMw9",
+	"+BRtnUgxynjyWVcPDgpTssgTQ3+UppqRkcyH3FBF+BEvdIcikSI5u+JszlJCs5zRdBER2hf4k7kCstCE",
+	"khHXEZAFfBnuBiw8nTJzf9zdBhqjNM8ywkXfTH880dt2PV7CMFImPveCaHnJBMlocqkIuzLbpxI5YyTj",
+	"cNO5IPH1jrs6O/CbirtbQEXMSaDZizyX+ecctuuYMNNzl5hpDGW6IIouFJEiW5A+cKfyof4WoSKtbLIh",
+	"Fp+irTdSv5SFSD/3uhvKlPrjWF4Sds2VhpGd0UUmafpOylc0H7PPPUBYUXadMGZvh2L5FcsfKZJIMeLj",
+	"ImcpyfiU42gvWH7FE/adoFeUZ3SYffYBp1TTIVWMJFSYlRyavabJhKVEyHlk6KObBk+Y4fJqUmhtKGAq",
+	"58KwjrokteNFqaZx2ad3A6ELhvZOytdULCx/UL/IjX6k/EHPDZnjisgrlgPTtpt2X9P9TtBCT2TO/8o+",
+	"6y16zZXiYhyVnC3y/ErmhnbLS5aSIaO5YUVmVWqT/uGHH3aOCz0xUkZCNVuWLeI/wNsxUnUqSAzkJCZU",
+	"65wPC81I5/zlCfn6mye97fUSdF0Mw6Wb5TJhSpn78kJorhefcwV/YFm2YwUKLmaFRoY9zBm9BEm3yBiR",
+	"o/DaHNkVUDFQMEXMDesLORoxkZqrBJJCSWyLjFkO951QxWwmc83S1yzl9B2sx+fm/nAlHilygr3umFGY",
+	"y2EIhhQ1CZ7QJGEzrbogfto+zBCO4XsqEnZqlg3GnqbcvEOzs9w0oLkRFEc0U6w+kvJtoic5UxOZpeoI",
+	"VhLGkLGRNiIc0aBxmCExMeaCgUYxokWmSUdNUC7LMuTSUsCDU6YnMoWjOAvG8dPWkCaXg4RmySCT84GW",
+	"GcvNCAYzlMHYdZIVil+x107Rw/NrTgfVW4dbqSwMTY+MRoIP7PV6UZNeiGKk2fKyzykXgxlVajDKaYLL",
+	"8NPatlu3/HlmMpFTqRKWUqV5wvViQLPZ5MbTeAwPfYpQGDGbvuF7RiwbyNFgxDd9c0pFSrXMG1Tfkwkz",
+	"wt7cKL5kRHlW5PgvHrUrlqc80Ud4FfSE5YpQox+kV1zJfAEqlmZTddNYoJ83RgGD8Vyf4kt75frSPKdG",
+	"3S0E/1Aw+7vZLTsBlm086+tBrh72KJijnLErlimrn+OjT8L39peNJPhiPlAfCpojo7zD+ZeFzjjLB4mU",
+	"l2qQPthkXT9KF6CLWxb/IH3lhVAb7vcVy/nIcoxlSlA99h9/+/yjUZCDV4wKKFKap6RzevL97snJ99tk",
+	"ShfE0FZCx5QLoydo1RdCTrlRJkC97pLnlgrv9yJCjSREvrsgL86OycUPO08PviavgQqTp71e73lfJDTj",
+	"Q8tRwu7ximV0KHO4qo+UJd9EMa1AVDNyKRiOHmDFP/lv5PAvLNFmQUvWdCYzniw25GwvQIH0TM3wpZHM",
+	"ExY5vqVKjrUxi1qe6t0ZziaMpcXbq9lEi5cbmESLtxpZRIv3Kgxic3peoeAN5LrVCCrEus0bFdJ7Kwrb",
+	"hpJu8FaNLrZ4s0rlWrywCY0zMi7SuSyTc5aa29dM8RTppAERW02+QJS8cZifQs3nx3Cjakej6cCuvDer",
+	"r2O0llisJwT1c1I9icv3sLJnzVu/fIzCC7Z2D983UWF3POo+C8XHAhoyugMscPPueB7Q6z4JeUC31+vt",
+	"NZyxY0GzBeq/a6l9lV6jcb29CR8EPX2jwd08Uz9Q0JV9v3HFipTrF1dOj2w/h5I51FRjowjPqSKpFCwi",
+	"rDvukjgvRDfJGdUsjSMSgyG4O+K68pnOZrm8Cr/JmRkmS+PusjcmMiOQDd46Q2id7o02WtDNqWmouZ0a",
+	"FaWa7Wg+ZU3PpkxTnjXTjxnNNU+KjOYqIlwkWQF6PXXG8BxMS1RJ0W10LoXbRs19wglGW/762d5X7uMr",
+	"Od5wF9mV84W24mTBaVliZbUZ2JabxnpCCzM8teLwoK1ZGQrLFRhE0MxwaK0KcIedkBmYVC1Z7osk55rl",
+	"nJJRLqdkVgwzriYsJeOCp+blBvGRJknOUq6B0ER9kbNxkZkfoX8rXF68PQPLApnlLGEpg6Zwc8lwAV4c",
+	"mpkrm5IZy5UUfeFdxRmjillXplvppdM15cLpesuCAkgRG26v2cJCI4utrvRL8ziZTxhaPxLTOElkkaXE",
+	"moDdu7BagsSGF7A0NpsBfcHKxHgkY/QgzCeL4GgPpcwYFdVrszRnsKk2X6hAHIajYEZkGA/YFI+IKLKs",
+	"PoMJNUdFgE9vTtE65SbSTPFNK2h0R71gvbxXP67MqPmB/cj6uvXEDBdGlLLEORS9gQCMA3OumJ1YaCFY",
+	"Xrw23KIiYuJOBasdNIZek8ap5MxbHvHW6dJqlsgpg+vUSEGVuTdGAlmxj+Drd8+YrZkyquDOgloYbuWd",
+	"N6yZ/5UjdCfOL1NU3pKq7GGXai3ZLde9KVACDoBlRQHtmoGGeEjiUtozPA/FvTjqizgQ9cwvdSnPfOcF",
+	"NUOnuBTmOy+aQSM5M79csYETXQdogo9I7CU1eIspnhY0GxhpzXxhRTIFraQ5H+m4S+wf7h6a9SJUEy7G",
+	"TOlDmKJgcx+jojI581S6L/CGUAEH6+K5t42Dp7cMmjC/UhSpHimy3yNTqTQx1FbovnACAnaiotJj/ANT",
+	"ekzzlKDEAGdYkY5irC/iP754R3av9nZ1zkSq4u0uOa3cOlKIjCkV3uKMK7AjEKr6wp+JyF4L87I3NcOp",
+	"HRn2buQMQfZ6pDbOvgDXZOT6wQZ8q6QD9BW/zRka+kmNdm1bY4Yw0mijmlBVEBpUg1C4t2fGSOiBNL/i",
+	"wISSPTwVHJdSgDd/whEJ7omlENHW9Y4Z+c4VzcH3YaYAN+c1F6/cNPALNxf49Ioml29HL2E68MW3y3OC",
+	"7/9Ak8uTyrzg6/MLPzf8bCd4Yef3wk4PfjwN5mifxome4zzhu7flZOHzc5wxxmWYU4rWqiZq4CxhSfig",
+	"ERSRPPhTb0T1G5STvV7wvxuMgydGQAJZpYE4z+WO4qk5qf4p1I7MBYVNv6KZikiv+4RoSXrdZ8+e3ag4",
+	"PXv2rKI6PWkelc5l9sqQYrWhrexiwuYTmoPsZxpBt6windOLt+Sbp9/0dva3HUvxsSZDqljGBes2cJAm",
+	"xWYw4eNJS0ODfSOT85YvwP6zlg/PaS64GG8yIPdK2xHVeKYdXrWd2kAqs44qi9bIJ3GrzouskVOW9NsI",
+	"Hx3/kWlCs25ETjIuuuRkwqZdsv8N6ew9e7q3TQ6ePd4+JPHezr6K+yD1YRDXkC2kSMnP/7ZvWE3Hjnv7",
+	"yDz6WMXgKvTPPCYXz49IvG8aIXou+yKRQrGkMITCPeZ5FbQI5+2IxOc7B/gOCV6JTPN9QYfyipHfwfPO",
+	"pwtiH0SJzcnf/5f/dR97PtjZUzEZySInyz0j54Su98Ku93rXMdFMVF6xnkx4GqLYLJc1jLfKP8ySbUVb",
+	"Zjm2oq19/GSmsxVtmfGY33rXLSm52dQ9bMH89dj9te+/Oz9wfx3s+edM++ZkFLlqUuPfzuiHgpFLtlBM",
+	"G06qZE465hp/fVDk5dWeGcohxmBtC2I+n+ztt4r5HOy8/91/aJJpIRJ3U/80QZsGMv4u+cEpJzmjZpCq",
+	"qmHZh6k55JmRtRLJRiOecCPaG0GsyodVjCpXIq9ozo0kGYN/kU1nehGZfvoCb7RCk4dgpnXTDTxnyF5E",
+	"YquFgCQXj4zyFtl2wb0JqlxfGFUOjkydOCKZGFDdqEPY6RYCtC/3dJVlrLOv0NKetvRbEpgN1upC7jnz",
+	"DsxpM0t9k5U+3JnliZ8KMpUpy3bYhwKtxTJPWX5IDMehOflx2IvIcO99ZL8YyJyPuSA/wncfCpoaaSBx",
+	"z0VkuP++4i1u5xSwtoPHTcNfLQScNLB+s4lDFMZT89mpgV4kaGXbNv26o9rUr/uNTKnO+bXrOFzriKif",
+	"/2vnn//f/+N//OGft//+P/1fP/+fEcnlXBmxKXgO17uyZPe2dusXFo2a66+DjXulyt94kRKl5UY3Ix0t",
+	"9+AkVJKycc6YMis4yhlL5TQiwvAYMgsU9sDhg2ExgyuWq0ZxFdINAu8rPo9kxat/Zm4Qw4tGXnh+d6/b",
+	"6/aaDbbWFYv9rbuGL/yDn6ItnraLNI/CwPlGS5N3gFXn+pwrzUWi8fgrJ5GPUAxfl79hbQk3khUr5prD",
+	"BPpls/EPfhrk7Iqv3hOrn7qHmo+XYY2Voe81RlUYinXTyF/DQ5+iLdF0+ixTKxeMdGCPjUYhBXMqbCFA",
+	"g71xMWeSN5JXdI77kAPLTCM3XZkT12tExrksZiwlw4WlZlwgG1K8JMztI3HM0p6ZYTUxhYrHtB4gyMcT",
+	"kARCImUIqWa50QNhMJ0CVUHrb6wwh+1bmisht+CmeZ3DQ58CZV6la8iLX/qUXXHrDu0sdq+3Iydz/rf/",
+	"PCe/J4LMYd5EJTRjt50AGNRvnAE+ZZ83d2EggULSLHs72jr8sQ3JeF8X4M5ypmCnBKGCeHrl71sUXDiO",
+	"bq6c2WOI1lF0VA/aE62ajNeQfeYWHx9YwSXB6bV0tu/K+5Smumh3Sy7w0cBXWZ3GdyffvSaJLLWS0uJR",
+	"sYh4+8cSgXTiwqAV5frePu0pmJV7b3zPPmbUaDjMg4SKlBve3OSw4npCYlpoGUc2C8Q//kgRlcicHaGE",
+	"Xlr9W5MfpCInrsEmGuTGKMUVE82mp2/l3N5LjEeEy5lari3MCcm4MuxcElVMzT/CpTjGAX1o5unYsPnQ",
+	"+u794F9ZvoDvXN4VI4UZUwf0ZsGIzTYEayuut719EJcM7CUczcD/cO/jCszEVF0i6YbO/8pyOZhQkWZ2",
+	"OZa3wTxSPe4KI+5tghyZs9zovDNtfZe5TIuEizHhYsQF18ztpDtU1mkiGKG5xKO13rOMGX1Iorw8six9",
+	"RNU0RKeX2dvtpIdw/5tXv+kWNZ3a+vLVVK5lOllRLqqMDITlqmnbdOAN5oE25IUOryp6mc6x0pJyeHoY",
+	"VfTgihYQqKlLUnajYQwSfsVLab1ym0RgrHCbTiX6UuBw0qEsdHstY0gVb/TLL6xPE1mfCgIUuSBzmaeq",
+	"kTzcSmd3lpebeU4xndJ8gbrFjOdMrVbEuJHv6RVTOG4jIJY3+ZEi1oBN6JjVjMdSsJULuEKaCZQOqvQg",
+	"jGJqT4++D99qJkkZBd9qJVCNGm3YE3Cq46p7tckEvmQAhh1wpyHCaJRghZumFez1ynP+iqtNw4xufYA2",
+	"MPrUjlKdxQp2rQfJCjMlmi+dTGMeJbPyCFnp2KwWfN29+cg0bYXZg3AUbdYatZbN7JdvBVtSs8qU9ZTT",
+	"sZBK80QdERp8hPgcf8S4ruVkko6QaCeQORGS5FJq0HeGNLncCdyR9gF0k/XgEeeSROF3XXZOAbnUjeat",
+	"QLg0k4J+kb96af6WukpSd/q1solBoCNX2tnFbtGxU3ibgzxQI7ll08AmVxpQcjq+7Zi9exn2sjkOd6/X",
+	"+/lvndqmgiGrstTbu5WPt9Y0UWa49XxQamu570HY6yDsuTlFO1sQ94LCdGd44ZYzRXlrlZmirsSDgnBE",
+	"enif3VG7j2gcPFv1exMspR+qP8TBNq1Yw+BgLt2uaIlANJ7D4EKtJKgXXheuW0kgABBAEbrkuIyCAQfL",
+	"DLM7B2jViI98OCjE0RlK1w38ctWnDee1oSQwbAyGbRtfUY75DFs9d40GPx2X7Qffnvuu/OQte9w0Rrji",
+	"LboHF1DF3N6uvRHlGUsHpSdoOVy4NKpghh+ib3B01M2oUqRThuvI3EcObXfXhnPWBYl7s2RvZkW+TzPw",
+	"DUkiN9PMTW1jtzc/LduPbmkAstp8S9PB51O3Q/22QUWtnvs1KmsTxXvOs6LZmuR+ISMITwdsGm4UTcjm",
+	"48Iqu6TjQ9l+b8khBmf83/8bSW0T20dkD3kMHSomQE29XbpeizioF6HzaQOZ+CaTcLfBR27zEu6UabDe",
+	"GeKEcwwusM4gy8NUhSptQK5XS345Q3wB1pQ+toLHl+80HbAlXwoVYzbA9AhIkblJsS4fbfip4hFoBXsW",
+	"ziB8PzAQ2R5rYw3SNJqvkj947TSyFVvSPlWoslfL+p07OZbjQQcR2dsZUoV4CEvesiNr2G56s359K5dy",
+	"vQey8disXcAAN2yDJSwvUitrQG27Kh6SJ3ZOq5M06se4naXnHbvWDRYetLoxgnBhmF+dc3FJqCZDqSeE",
+	"iVQdEbeKZS5EJudMYTT1hI8n5m/r26Y5s696qb5yl+5nvM4xDNFJZUe1Ha9frKa9/5bRTE823PFSbHBy",
+	"tbzEbtJFS+kZ+337py03hHN8uT4H21XT0INb2RQNbLPUqAji3yPnFIusXTJyITk5UXQ6Q59qEOX29UGr",
+	"ILf3dYzDXvT140+NYW8lwuFZzoxIcet7F8jx7YnXDTZthN6w2pW1QBtFqlAsPSJCzuv0qB2vrYZHrZU1",
+	"yyeNfAp70p62lEt6AW/W8T1uIC/1HEEvJLpxNB5DG7K1odgTRIW5oK/S8xyaXjDIMR7KQqRhelhE4kzO",
+	"bciioUKxD0JssOLh283WrNWBz+1tWW3wAFYFS29o4oB4aBsj7WQhN7+mDXpFNcPj0A4S6TYBmXhAwGPq",
+	"Uq8wCdLcCMiv4VeOgWx6eW51z9NAv1j3ltdDWqnPdUEogB1dH0viHmzU3sp7VrbYuJG3SWZ4zjRL0G8j",
+	"UvKhoDAB68pBT2SEwY71GAkFGIMzTeIk55onNBuAhhWTDvUe5e11uXU1T4trJVmfyXJ68Zbs7T09eLyz",
+	"T9w7Dj3VeUF0PcvlepDc1sRemdxthuPWIiKLW49iVd73t3Ju+lig494tLjgy5pOFWfHuijRyZtMnmtNf",
+	"w1lZIZrgS2aYOD+zqrdNas1kg6vk9ORb8ud94geH5y8ij7uPf/7b//M/717curMPKztrOvER2evdocMl",
+	"gmwusRnD0mGKVh365R1amwX62tvjNqLcLiH0xqz7OrZQSXU3SN23VOzTTdHhbVxYN0c9Qy6jtUsYtmNf",
+	"2UAms30MF60hHuwr1d5X3L+guSULSy2wxgx/zK9Yc1NTej0AgXRAx2wwkUVTDN8bT4PRn0tSaf2jM57f",
+	"1vm4YQCvTVJeNjRZnwOObMDFYOSCUZZlsfZ25Xuwndrc7cBIGq5qs1G0EtvjL0kU3rbVU27ezXp8T3kw",
+	"V9OCW0Q6oMbX/kJbonMTDodrdvVYb6ne3YJ8oYB7R+pVUZhuMMdUKVs740ao4r1fFtcwEabXffak20BJ",
+	"braatKQYRrDIpBhbu3polHMY60rTRRmIZdRfZJ/3YFJ/+s3TgxvhHG9FftqL72voUjMKBwVXHRdjuz4I",
+	"+zOnUG4Bfa5TuiBDFgZxOyOCB/WCw77djMRxfzStiXT5S9F4Vd1q12CWMWcgJgvyezLskd+R4d7Pf7s+",
+	"InElmcD+bn/yCWdxX1TfM//u//y365//K2ZTPz34+uud/Rr4ALYMgZJBF1vRlm+3pZEN5vTKtRZ8euta",
+	"hO/+XDb7Kdp6CxjDTaFYP0wkySkqvKVN7QhMbP5kuYokC0IzJQmgy8T/Ma7Z1dpWDKka1v4jWNb29r9p",
+	"Nq3d1aD2j2mlWmebClekjKW5nY3xfkJP14EloOmrmitZqFWBMctCM5D89s5vfP5WLnB8dXN/N6Ju3eak",
+	"nMObTcrFCnd8U5jjoGZusb7vykLUJ1eT+NwMboiQXBr4xjdxnYWkGnKIDNwQpbTqOl9CsAKOhAhWZZCk",
+	"VWbwetzWehFY21qc1FFGxw0iSQzIBQPwRsURiQHioPzIrnVOZ1jSBgCK4OlMIhiR+/TB/CTYGCKw4G85",
+	"MHM1/N03VQhrMB0423Pc7YsLyJh1tky70yUpT2ieL6A9WEiwPPdFLKQeOCODWaQYYIFIjLQNtz/evgmZ",
+	"rTmUZ+kxHhjb10o67rngnUEZ1dNoYyrt8EYhlUNNufBpPPGIsyxjeXOSzpRRMdgwXNE58ZqUWah2JEfE",
+	"u5qDDBaKoXjpzQmoNZShZSfZbJbLaz417atKElyjJ8IBSrvDHkTxmwvFlIam7sOkxNOGGMZm0KQrCFDE",
+	"GxUsan1Pgju6fCLWUzDLpDejYP9I9vf1VndXuGI5LvPlCXl28OQbYgtiEDTgqWXL9yrjLkKZgt8RioVZ",
+	"uDHu084ioNAzJq1ndjnjfUVO50sJoVI047Z+SGSLWDRUA7Ggii0ZMkz1pXm5kWyJMup8ZZEPMqOYP94Q",
+	"WAMPWCFmXZWQ+J93rJC7c2q4gZbkQyG1RZzE0DAER33S663EFGwKtzX9fPvu3RnBByCltBJ58qQCP3XQ",
+	"a0w111w3IRFdTGSuicJgV0dl3PkxrTQOVduCLHUf/3fnp07zWLhgrbAxR7uLXBwCz7pkbMbyQ/vMoT0h",
+	"sSWlgTKyXpiCX90cg4jANRbsysE5/KnlBXnn4CK5q33TXRnK1hQGYd6vHflDQsk/Xbx9Q87wJcP1JOKR",
+	"yHQRkXjXaJ1qt1/0eo8TAf8w+ymRWTG1X8V9Ye7mycX34IyJ8Qlufz20r9Mps4/DTaZlBT4UCNavs5vX",
+	"2pU9d/n4GzgFf5D5pVkREIiiMlXFxvXYBXGhPWiJM5KR5UA1wTK3dXow86u6s3fxrd+7v7xx+RA51+g2",
+	"TVWmZrlE4zDNYjKf8Cw07lRsP0ckRhReFAIlRDZowlWAK2nIrZDVdDoMo3X5dKUz/YjEhh9MWJbGfVET",
+	"4oFFYAx9ZFuISCFGXKP/TuZEFTOWK5ZabyHti1bddt00XJSZh97lyaRqpwnWBrMe7OS3oi038rYIX9jj",
+	"WaVB++V52K797gffPOxgKXcuhyMG4J8uvrBjrXROS7By3TCj4pIkMs/RMbe9CUhiNRpxZ/m3peN9Hkov",
+	"9YyPUuxFeS66G8yIX6LNLC0wyCK7HXz7GsvJJmHKCS2atjZAfAcgMzQCdWlaQXeHlBj/OTz/MRBt/N7H",
+	"XDcrNy1y8G4OMtjQNnPJse6lu2rWJ2SZLRskE0O5218vv4snvqHgSyB+J65Jw1DN0slCgVFkA9dGhZiu",
+	"ADmA2q5IdiwfGcFWWPT+huThG2KxkVj5kbYfn7Pm2H3x28qF/vqgEdVqw+wSOJSDFaq8Yg1BC2fS3m8H",
+	"ecRYekS4MKsD8A1GQ8BoacC/r5Co1eNuZyMzI7K52HD+3OWrL/LS+QhD1/2KhvMPMlTWGuIqN62ZW5vm",
+	"XzKWfoY07w1rF4S0skE1mlA1mMp8hd97bQ74GVWKUEVixQGUcWQLpobZ4OZQ+ODH9fts51VP+fYDvMG2",
+	"ee7xkzaQON9NXM1mAKxHrKOZT31JWF24wfLOa5JfVkdsBOUwfG3ROxblSHgbWDlcmefu6QrhWhWvsRwB",
+	"sln+vh9bcAlvSBipDTNgM1ZQ9cmgrfmLafDYv4yfz20Tn8ovbuOVuo/Fv2vWQZADoaWDX/d+cgwatw6D",
+	"EvW0u3qvGnelyNj3ULG9TQ5ZjbpZorrCnGFjgri4ktmV0QcMd+GNgF5t+NpSTgpu9IoSII5Y7e3sK2Kh",
+	"kiNijrb/KQTVb3aM5xbX+QanpIeArhSiWH+BoGk/iaAqQ7mozdslNgbvzQthyHiJzHkP2cy38kK2ARV1",
+	"GLub4ojeIq5uJrGifXMs64ZoK+eFQGjlhpPqZrDC9aoNMzLvVBbAjU6EifR/QUqbqKvWINbiJfT+Txdv",
+	"3wBEtf18cvE90MjbJm+3t5eX/p9N39kg3VuuDJ+4A8/bPMbgvAiCCxpQB7HUXuvmHEbijdFwm2VhVzKm",
+	"/cr5c7o6MDCcQ7k4UYnms16CK4TTAz8nWNKycQb554zlLi+tvUVjzS1ve5ManW6tF7AVfPs9ZKw9MJrB",
+	"pkEc6xNYlmACVqzebUNCb8EgPye1DInfurd8jNldKJsPdq1b9NaSu+VLaDTuRXgJwUzta1huRB8bxvRk",
+	"s3AuTzvXUMpyQiuPl48zemDqtmlEUxgV0ihLb2BhWhJkrYmlZYxSySLvz7KbroT12FvF+tvUX05XmP4C",
+	"C/omkMQ3c/CmlLxgdmuX81ZZll9yHHEVK/djU/3KRm65aCyW+iqepaqOAILz+1bD1gaK3lC5qzGqqOrv",
+	"G9MrBp5DyDvEADOI+Ym3b532uDnSVVW1a1bULPW6E0q6t1ksB2GRhPpCkWvpzbvleMg7QQm1JFUrQhuh",
+	"fK+PqCLwlFGE47O3F1g8EAXP3Z94+mm3fFJh7RwIM3Rhh53yWDRU+9kGx9ZSUGJfwGu2zEbORoB+HYJp",
+	"HNmqjWVcWFl09Zbhi00mYHOxHynC04hQZTHRAH5kxFgKqBWK8LZ+jXsKh7z3eMb1KnLVv/4gXq374Iv3",
+	"7O5aCsa8BdGqOD9vMF/holh/o8wJRmqYFUe4XNtKe8PWPZQdiDCMgsSVn5YrcVlUCx+cDMgWXLQEX9/Y",
+	"71aVrkOJp1086SaRqvXrF8auVp2MtWvSsPubJU6GosU/omqw7n415sRspA1g7+p2ivmmOmwdkuTBEoAu",
+	"Eomhk85umxdCHc5zroNkjkNzyr3t57DERk2nXLQ070JH54VQP9i28Qvs4Bzbh6/A/KI8VCp8d4wdmfE6",
+	"O+M9pindAkJ6HVDfQ+hcJUW6CcB3xTZXzA+fQfVaWtQbHFPBw+HyflY97K6LDO7RZSdfzhjR7FoHoeqQ",
+	"KuyK5yYTmtNEs9zjyWg6xEKFKPMZVpfQPOd0bNi2LnJRy5bcdxRhRbrkv/T7173ejvnvU/OfP5j/nJj/",
+	"vDBf7r3s96+/ebmiDuc7ecluaw6/hQ7VXp5aCaigDM3YgK8ADWxgKOCBa5bTFUtyprvkYiLngkCIrzkr",
+	"R0Z3TqiwGgeA3YOK3VIywR4jXzQfJ3IjWCxs0e04k1vEdvpoeOca4gAkwu5QTeY8g9zM0pN5RBSslVVq",
+	"UOF0tbeLlGuic8qz7l02sOSRB+sYJMh1Hwpmf24qwFHdgMY1z5m4Tzbk6mPfCGJg+v2De/iWDu6bCjW2",
+	"KqpYLSFuLqRsLtFlDoSW5JKxmdnxKRdpgJ/LFdFmTqRDSRAx7QuGRy48o6wlDtaHDbG/fWJBqwU+809X",
+	"kIBbHUdsYFXNQp0XImmulPEuL1hp2Jpzkco5mbAsJVOMQaeC7EW9Xs+tCBSHFRmCfsosZUrbBwANy6xx",
+	"c7jIlYuj2cStEobf3GgkbgbTLjchgPX1Jz+o/BQMMFwyd8ZukNWrd+QOoUJ3CvsxCuEt9XjRBPMcbTXV",
+	"iEQ1oalCZAcL0O5tr0hHqZTkv42xgWWYCLA6Y9b14K8wgLRBJbmbOSKsH0way4eVOxP2vXL/z8ILb8FF",
+	"TGeZhOSsVRZVf0QJtXRpJLNMzlUY3eIaAWXdyGxLBdBCbPhMtg1Erw78wvZS/fY06LP6iysXepEu/3Th",
+	"R1P94ZXEiPaAaH0Gn/Om4f7MUPxmounAZ7RNhbOHzL+BtVW4cq6BkQ+6cwlCITWdcgSwgYfVChQaLgYh",
+	"t15+4HaBBs3wimAZd7v1yE5jHXKBYIaT2vQlqPokJPEH9bbukM2xLKo8pjlvUbnYUP+sC8IM9qx9seBq",
+	"gONaBhWa+yrWPQdM6JM2y5CN8hRWz0Blrk30CI5xeDmKAnoOdbTezjO6Mzreefn+p6efdsKPB5t83Ntv",
+	"xr75rtE4e0zAPFsIo7bI1CfETse7rwAHwv7742w2fV/H6Hm8v07n/O92/of3P+1Fj1eMp1oddsPsTKj5",
+	"urer/mU/xoLAgOZUhxslF88jojrX2+T3JOmR35Fk7+e/XTfgrvbaoi7utXzQZSet528uh6S3BU03HZzv",
+	"y1tXS++CCGoLNCYWpKyOA+VG3PW38cMrnWGV0kdUuaolLbmVHd0Zvmg/vYT3cezVmoubFtZsDR2+eQW4",
+	"h/XttuFoZUZ3Q4zIaMRyJhLWXKLtt8/J7wnWaRvJQmB1Nlu1b3vX/nFLMg8Ntq7h1xZAh90VP2fzxMC2",
+	"dT3/ZJ5fX3TP6CTNO2HY2MffPv9IqJEQsei9X4dHylUpDpFQW5xOcxFXQbHnLJFXLF+48dyhat6dvZ9l",
+	"AsGSRGYzpmHpHinioP0SOWXKBie0socFXNpSy5tNs+4Q1xZr6V6FO+sX3V/MIM9hY0daeL4+Xxyxddb4",
+	"1NdGpWxqmIVDbrJP1lzBQwZZjYabYpxBAwhloJPWS+u2L6hb2/BaMdv6dG5Q+Zfu9DLL5IJrTrOYdE5P",
+	"vscwkEQKzUXBxTgmnRPzbUIzPrR0LhxRyCltQ3gK7fvtWaZv8tQ3UzkwQZO1eX2m6r3htNtbQap7e4P0",
+	"Xe1ig629ZVz02tIMznISFmfYqHTJuuC1N7aabg0pC0FPSC/yJnAfFWGE8bsVYmtVju3OjPKz+ubakH3L",
+	"IVb4SBAR9sQVwd/0HoHNakVqstSsuWI7Jb7oPkZUXvLZjKVHhAHCudQTls+5agY1UsV0QIdqkDc0/t/+",
+	"88ffnr/46DSeSh3nAIdGLQloTcO5U0nbO2HxhuC7wXQjt9x2bVdvp+29ujivGFV6B81vimAfqusURlIA",
+	"SB65sgqo1R1RH7LIPn1RAutdPFdHJKaFljFJJlLC21Np0aRgC5WT+9SUZhlTAGBF5Kgv6FDJrACckrCM",
+	"trpx48AYhVGXqi8Q0KDcPC5IjPMa+C9VXAWfERIsE3u71/jff9mHfxf4X/tJwb9mci35l1/2N9i8/3wq",
+	"rv65/nm/9sV/qn+uP3BR+eIYhvUJLM1JkXO9uDAnyhYsYjRn+XGBtclqnN58LXP+V6ASh+QP8CzS3ASc",
+	"kRZzqkvAdagOSVzGvcQRicPAF0DPrIS+APZmOuUiPiKKMYscBykrXIpHisTXO+6Y76AL0W4OXAkgHzCk",
+	"8tpPtJ5tffoExsWRXJ5SgE6GcdmqAtxTCDhSGR3K3JoBAjnGn6rIHHPVF7Ty81KSWeTK8HLtA8TBygLq",
+	"zCNFSuj5vphBRQyIwiWKgSEVgDm4jiCkEJuKyCyTWEnniuUqDPZVcFMKcSnkXKiI/PnYASGYJqmoeIf7",
+	"oi+++sqV4DSb5GJwqUY0qe5XX5ES8J5w5YvChHPpC0CtHRteD1VrWM6piz6kOXMqiyJpTucCEcBmxTDj",
+	"asJSMi54SsHfD22V646LY+amLafHsMqxueAyhymZb6xmePH2jGh6aZYxZwkDEN0jL58LxlK3FkPDTT4U",
+	"NMO4/RnLlRQOncoK8F3ygiaTvrDgWyINQ6q9VSxnM0a1QgOroSRO+IphdX/zG3IixZXh31KovthBNDiE",
+	"Q8TwY7M+StBLNkig13fcfXv+8oQ8fvz4GenEyFEOiRee4u2oL4jp8bt3J0QKIgs9K3SXlMICHGJMOzDD",
+	"cxUMjW5PkCqprhkRAqDijyMjjTNy+uLFi51vnhwQZGCqi8O2sRgITfuGvoFAVwHvLI7McKwz2VaclkzZ",
+	"siBcadKh1pqGxU1C81lZaIiaVip0HCqueF91LqXeBtADw1HjyCKRUKLMrAXLYEZWriXI4JQNQCf2VuDq",
+	"K9KJm0SWQ4TMBwxdQpwM5Zsyi5RkUpkLYNhhlkVEIYCdRl5l1i+hOpmAE2SBvZm2gKeZO52b0aa2Ljcc",
+	"nFQmSHv8miHBGrIjkmTcCABETcySmYaU5llG+FhI2DGYDFRtsmVYzCwjAugtxHDCnNjUA0Vomto3cOtd",
+	"tfCS/ClftVG5so0q8vU2hQMshpWAE1iet0OyZ1j+1wfk+OLk9JRkTGuWq4ikfGyuKUQZdw29H5j/HJr/",
+	"7MQRTokigiZADlH7qjlf8C7poPhD4vJ4x9td8p3gEAwNQV3orzCtBUFgNPf5B+5CGn5mGrHQdDAnYCt9",
+	"gaQw3r3ai0kujahhqIYiG/DAYws1ADFmZnEF6wuZY9AB9nNoBvIRP5CPYNX7SMY5Nbv8sS8+7uzs+P+b",
+	"B0N2Sj6Ge0U+Al4AsizIo4TttlsUoW0RfjR3KsKHK8B8pYxk9Phd0NptpyHXJh/Jq9PXF+D5GufWufQR",
+	"20du7nlSwIuiGrp15KyXUJmCmQvfULsCu6/KCOSj4WRK09GosVvkbiVrU0ceN8X7Jo9c8dZQos9ZIvO0",
+	"sibKjgCFEvKRwB9caWBKZtogQQJJNd0XjgHhKGD7oY2+eFGRZUjGlUaGjgfB1vRIpxzZLaoV7FozYa5r",
+	"XzSIPoeE2hM2kRkE/Xz1lSEzUrCvvrKS8NRQSGhWs7TrZtIXXMEQWErYtZHIuc6gMlQORNTIJ5CypDxJ",
+	"M087pp8xbbiT4dBvZ0wcn50SJ0k6vBogYXJEqL1C5cwNxS6FzEPy4/u4LzquncfdHhp9lb0UuFAQjGNu",
+	"x1vz0j6srnnl9LlhqoIlmqAIqAyxPnbu5ohMaWYYJqJUIs2HU3AlL5ndIDOig97eEbIs7r61nMYIdXal",
+	"cEDw9OMuiXcnUD/3r4Z27UIJXvxzynTOE2VTKXbljAk6490FnWZxX4DsIaTtpBO7hYOF2HaE6QVoM44K",
+	"ITS42UhBlsCfOzFsFR7YXfvt7/6iIL0DaWVfxBYG11DKBojmGLWn2MohTYjNh4ZJWATboUwtMzPikxnR",
+	"1896e2vRbVl3DFw03vU3bnd/t5qNQjpxf6u/BZVWIVBrIjN8f/sIez+5+J4kLMtMt63xciMSi9giAWEt",
+	"8NlkoaCaIoTQdEDUJGTCaMpgmeHrvW3ntLUdfbPrRL3YDqcMaTHjuQmI1zX3oWD54hBs5GZsM6onhzxF",
+	"5hfjIA5PUzadSc1Estj5E1tA7p25fD4CdsqVkW+FRfcNlx4aQoGbK2cRyZGvWiC/eNcetdfuehC1EJpe",
+	"RxYQ3GhPlscjtw0CCQwfPej1jvDwIOHiqi+MBLRjWxsWDjfZSGpF5pOUjNTDE0Y6Rv+wWf+lCuSFnr4w",
+	"d87IH/7aurrRlOQMcgh5uUbkki1AFjzY3zd890mvh+qLoRt90cd4IkEzvEr9LSTPE2Z4m0P+jo+sKccI",
+	"iGMzEHuCraSWSXOE30ig9qYzK1Cjr9hjjHNVkTK8SoXCo5MFqjDiRiIOl08KBmKs93uB4AdU+xJiTUDp",
+	"zXjCbJogRhtvGdk150zTfBFggYdKLsZdKJsa3+11exY+wtCorcOtx91e9zFGUEzAHuConPl7zJpCHYSa",
+	"G/Fqv9cLcIpnuUyYUkC0Mn7FuuQNiE+O8nU97gyX4jTdOtz6I9Pf2q5qls39Xs/WJtEODjageH+xqYx4",
+	"UG+ymdmy62ARqM0DhmlW4wn219SMHxdmdgqaAaXeCo0pW4c/vgez29Rsw+HWK37FBANXvoYc3R/LmSu0",
+	"wziesXKRz3Jpzj8rFKY8sOuZA+xEfbC+vkf4CCBBA/M04q3hPnou80s0sVksEEV0XiiNZ2ppT17bkd24",
+	"J2Zcu7OM8tpu1L2RSwtve3iIpQ+WbernsXITQk69cifeTRhxworX1QIqMaeKDAtupNpcTlsde9vcZsfe",
+	"DXKDhQ6HbuQsN/yI/Kfj168eYv3fhRrtuqVH8akljbE295Rqavg5ofZXZwOyLMvwyyLPYYJPeo/7onQL",
+	"1Hel+eif46B+EWoEfRsGBMfq1ntj3np881sXyJW/E/SKcvROrNvWc8gxuIGkeWiBlbv61VdgJT786qu6",
+	"YXhJ55O5U12AqWIuIxEMqgaMeG5kBcCUxFiROAg9jMGAYkVZy/YFGS76IuZp+GOXvOQZWAoSOR0aERBk",
+	"peM3z49IbC4zCKZcWO8hivdaxn3hPYoRGUo9MbS2MoIu+RNbKAaQuVxYw8GMKmVZJWIa98WMjtkjReIA",
+	"HjcG+F33t63TApD5jIxwuEe1F4wsBt4pifcEks5N00YywofMROSMfijYEcgaVSNdyjBkUeZ9Ab+AA5em",
+	"dkHgGrnOI9SHek1X6BVX+sTBmnlZWUEylOESWyAJu6ysw2puQ7sLFPpDP0XNzZZZEvfXps8hv78mfVxs",
+	"uyYrQc6r2gxQ0Vo1GoCtLdWOpnnGzW2rnOyovA8QTdwwBnNzKgNo4/5f7v8V1Q29+5u3qnct76HvMzpm",
+	"RPG/ruzFVVIvO/J5EU96QRzBfiV6oAGjY7lvw7Sr99sX70GygVd7xcA8xnbrQ6WApb9/QKYHJxdCbhr4",
+	"3lvBYEJmlsgDgPcdtOF9f6C+4jO8snfzK98Jas25LMWXWnDLlzIf8jRlEKRwsP/s5jfeSfmaioUdnfqF",
+	"uLnn3ycYTsqNArsIeLjl1++jrSVjI0AYtEItqDJ/wBV6AAkAKzqA/j3iuktOkUt5l6QUCYtKfmnhh8yt",
+	"SAkXfRHjNwOrDCPaEaRvgQE0Z66lFbIhonAusbWmjSkfwaNvkace9n6tkv+x8Miv/Er1Dm5+443ULyEc",
+	"9R/0Dh47YDhzRI3WAo59Gx8A/huXsvnQt3MXnCWt7uj6O+lMXYmRxFOsE0LoUBY6LF1llbS8EJFLrQUB",
+	"3joUAs8NGI9mMybSHSmyxbqbeAxT+FVeRxjaK7lSI8eiGF+u5K/gSgZHD1xXiSXy7gbay7TqBm5w5Xzl",
+	"JzhuM6nudPEwFl4RajRiHHVEcmZD7zwTrGVNWEGyL7DMPc18cAWUeAFWWZYBy7hAjxmURFwYfo3NDOQo",
+	"PjKKIiO+Ic9HXSQ8eBI0XUBgjBU8uuTctl4bhvXN4hv+k9FeIbXdBcvYQuUdZskOtNUXEF4PUehGs419",
+	"wGFMOtb/01zTbNsSIL881mESz9A8MLCLf2TLIFl/tsuNK8Qj5TwafTFmGjwf6N928VFcR97x4Gb7SPmw",
+	"JJojOwBkAqr6oqyk1yVvHRyBtWlZcorndEK5IAkViI1yxRVLSeeg9yzqC3C+xDbfQw3s29b9cw6pop2D",
+	"/X1bpnWYwz9OTiodg55NmfaOfBRXXyCk5enJt+T1Xo909nv7+9uRtTsEwVsXb89clooh9tvgTozBszOw",
+	"Wxcf4hhwWyFSCDkhfFsGjnKIpMA0ClWiSEKD9rCogQLDr9k2webxIaGaZIwqDa86jAyMSLKHjWZghMR2",
+	"pvR64H4ZjHIKQQzYzFQqTfafkN96l5aLc3dD6QtSNmuOWmZOaXUSbgiJLISGGkvg87FNbdtRcDHAcJvB",
+	"JZvpcBqVsMHgwdjG55gxdFx6kOLXkduibYQLoW4E2NNQ6glWKR8wkaqBYCx1ZRgP7WTMcCt3zSwA2Lus",
+	"A9UW8XQn3FXxxP0UNM/lHC1e0JGZC7xtOjwCE5RpxEbZ4FjsCCKI6jKMW9tkGhdeMJ8sEJZ0zATLKYT8",
+	"xK58pDdowSJvN8kPSDlfOGp8RwkC2NgfZLq4N+HBj8yz/Gqoty9TVxFe9j6PLhGm36HfGvp/JZMVORtn",
+	"VE/CWllYjCuuMUdIh65OMVrn5vh3Jjj1WghOJ1KMMgsHcLDXYkxndJFJmr6T8hXNxwzfe9JmAVQxQ4ji",
+	"1yzl9N0CAaEO9vfbvGy9wEbWeiE014t/VNHwRT1czOYRgNJGneQVlFtxIuOH5D7ExVkmdXeGORkPYUih",
+	"UwbBc+BsgM7U1Ti2Mzt780fCp3TM1ilgZ5nUZ2/++JAqGIxh165Cg0l3yAVFc1YbRyjM8ovS9YvfLHNw",
+	"Am0rIniKHtzo4U75A1ypizKQ1ouBTjYkU5pfstSKyFZDszOHrA4pRhzSFfpiSEWKCgNoEgBBRGZUsIwM",
+	"WSbnoLDg1fRxRRTjQyDypy8EnYKQie37LJQgw8W0br1EN13vi+8/w/VWV+PfXd8qsuHLhf6VXmg8Nw9/",
+	"octg83Y2lWpUe+0Ony6lU5k5FTOiJdnrQXihzX0I8rjshEHVMwpzX9BSO8QgXrzN5S0nDpbcqENx+X1c",
+	"am+gXTldb7tLliIQu+QsSPqCtJR6ZhYVC5e+BB79CXD2EQLDU22DvhVBJ7RZDEsUjiooI30B2pcCxQ1J",
+	"k60GQhRduEhITPzJIOWh0IqntpyGTY1jaV+gBihzJGSEorXbBihYqzim+Yy4Jp0y3832A9GefXHQe7Za",
+	"qwsW5Ven15Vj20ix6z3IAFyJ/mZvrLVhzXwyCZjPXLSrLeT6RQf7ooM9uNc6TBaAVDWX2xqwl5ALtOQx",
+	"a3hK7iuO39VE/1oCEqIlb5D1WjcsG9YS21Qly5AckmKMtXjQtYY2tLKYua0tggopFiBvwn8mWCYbbOQ3",
+	"FJC2RjhamtI6B/v7nihLwba75LjCUBD4NJNizPLlmUGM2LNDkGMh65YrMgI0rb44B+B1FboIIUFayDky",
+	"T9VE4rGOwX144e+fuFeLjn9mwr7SYnfuK9t/IdZfiPWD+1LrKZcP6k5dQla6Z40eIxsq2bI+zKFBAYAI",
+	"ZB2vion9vgbS9CsMWlhCx1qhdFcW/ov2/cvfu++bM7obwxnW2KZbquFRGzW7AgCz+p6R0yCZ3TTbFyvS",
+	"022liyHVyQQT9aQgnbCj7SOfI94XU+qCksDH6pDIzC2dGKGpUxuUdY0zaiUtr8EPaXKJolspq3SmjIJp",
+	"IPabFEdEyL7wBRwtJMF0BrBJXNsUzGru6yFxoIp9ARCkgLXoQEehid8+vxmclJxqSCwAAGgm+gJQNP/+",
+	"r/+l5jAugWa64SIPtMxYTi2SYxyhgNgXzhTx87/t98hvHXA7+e6CvDg7Jhc/7Dw9+Jq8xvCSp71e73mI",
+	"g1Pdx6Pl2AAbl2Jmn/MU1ihycWJ9UYF9ga9dLIGLGzsu0ythaR1GKuY/ODHVSLYKtvbYofhWzhdEXkgL",
+	"oOGRRquoBcRFn/cFNbqvLehpiD0phOYZJAVbpPOwcUjS9cE5R4T2hXsOAxIAZ8Z0bQRy14urF2ojSNDe",
+	"G7Yb9QWgaYCYn0tE9nE+esSetEUuKRTSYUYXEArDGewxx4KcsHAHvWfEmowd6jvaeFyOMkrwIbp7X9jr",
+	"MxBSD7y+sh15XacMYgGsHUF87JP3l5WNhBEqZRM1a5B9dkLVYMR1vN0lB/v7h2ZNK2tuMXzC3QyCfkyf",
+	"laMPaz0Izi0k81MMlVlhYvq+Cq3561JDmuAdP3P4QBNgawtJwgeJykKbi/5FZfmisjy86HSOMgJtRsUp",
+	"QXFaSlBhvccbVJkAxmf3p/LDJ6fjWJL4QN7/wIrj6lRb4IOan9DhNVCNHM95KPpCyPn2YYDe6Ap/eD6m",
+	"0dYPBBnexe5yH87YFx0hdRtmgfKUedhxG/SlYjKozVjEyHGwpEUI1k+tYJQG4Hk4qznFOEIwTNk67cp5",
+	"XIhiYQwoTmzAxQAAigDkSYDFTRXJpM7xPMKkzFIG8ahd4uFxK+1P6TW2PaBjNpjIIrf4MYEAw5VtB+pV",
+	"4QLiTkRYnQRh52BgXXLQO/BVtLE4EcBHmAfBgD+XebNlzbl8T8VLiTjdm7G1Uozfujkjc3WY1ybplMvc",
+	"ZCoxsd3h5h2BORH9U0PFhF6VMEf15vmCD57M47ZiXU5PufVftPBfnJUs74q5qtQey3tVwW9iIffrFj9W",
+	"JD57e/GOrPG+x9GyTaxchxFmlS8xl9gShXiJvZirC3iwfRH/8QV23ZJjGiUC8Mtg9V+dvr7wAFzgFkku",
+	"3fBS1ehYfyPr4wdXxkFf+KwKdJGs1hFKengXh3RIVR9IX2ga6Bfv9Bft4Yv20Ibk/7mgRiZZrKF99+qm",
+	"tjiTrXSCmsCfIZRCmAeGYqqDWBsuIANolf/ite36AQkAdrHO82Dn/wUd4P5dd1kWoP1Wz0oYauFO4Krz",
+	"u4mTIBQxwE5qzh9JbF6jP6l7XXImlUYkH0wRgzwu8zDCBYtFX5T1iNBab9S7+pl3TaPmeB380tnv7W0f",
+	"9QUDwJO8nDqkI0aBiRVvdxiU4RvhAEfQF0EKZjl0dk0TbbP5auN6BBHAGoQiQ0f6wg1UWOEEwzwwZIJr",
+	"M9oeZC7mTKH1OmMjTSBMY9QXgaE/BkD0AA2hrB+lHEB7pcqfmsg5TCHLII+tS46tAaBEK8d63zA/LoyA",
+	"i0pt52B/f43Z9LVDz3kIMQYb/4UEFzuzBpqFOmtCM2dcqe38kd9hwLFAYylQt/s0yK4eH14754rJ75bc",
+	"5RhJHHCq3Z/Msfn3lt31RRT7FQYKwuXx1CgqvW+hyIN1VjZlZlXpy57pexDCIldSVHqYmjDJPl6NzomU",
+	"tAlebUb1pLRswT8PY3E7JmrGEj7iSUDOAhrXwu4WpM6VI1qLlPX+FyHjpej5xc72y9/0t8Ltxu2vslWz",
+	"NneuNAeJAee2JKYEgChlRnTHe/CCoEBkBJgPCAdjdEZw10tNMzRjAFb8h3i7jppzJrPMY3xAvZsSFq4R",
+	"TBKqgcSkgxfysIxoAcALI/rW8SQJzeZ0oYhimnTAPWthxQGpDaoDOXVXSShporejvgCz3oSqwVTmLHbe",
+	"CKwqDzUw7FyhrryFXyCJnNpiBX3xEuJMjExUHZFiTNn1RJAhJ1FLkbBD1yxUJcGyaojDgLAb6EFhPA9j",
+	"IZTtF8yFFOcFvhuM0wAsdNuX8y/5gWKlja4v8oCPcUXmuflduK6D7mzhG4o45voQ4p1Auu+LvIBwEZdf",
+	"BHFNXZQH44jE9vsuTdP4kMRWUMRoCTQO+2iKrgtoilY7Ne2T4a/xNiB/Njrf/Av+p3AQripxCaJSopuY",
+	"oZtT7uqO+odDn58UWMCh0exwDg29gM1d5ni3QU08skypHIq5Ae7REcMSfo1gneYObQ6reK/Iknu9Xq1E",
+	"ZfTLcUzcnJesOcAjRHX8x8C7+kcUe5G1mGML5b4qkWuVsGv85nZ2x7xo7UgKShUtZUhDpT0LnEQ6QSG9",
+	"EnHKUjr0948gHEiwsqieoVBojqgBXD3yuN+BdO34aUmDDwkl+729vpgyKlRQyKdC3CG6sBA2U0YE9dGw",
+	"gMqw0C5IEkdWluiwth+ZY+ih4ZwMwXAigATyW0vYh4JmEdFSkpGh3wjhs42OKJ5l1h0VuZJYNnwxzOGp",
+	"ZkcekpzO+yKlmpZYXHqSy7kgdE4XXXIaFoAhnYPr621X/9DaIQKAqCFbSAvqY7HVwcBzGMYxTAvlyrsh",
+	"eqH5iPGsbp9KqKwjZzEyS+LT0h2iV0aHLAPkP5or4Ol90VmCTlJkLLHKTBB6i4dFz6UrU2broKmJ2TIK",
+	"1QnLqNsjd0l4WjFnBSUbbUGe35CgIktfXDAj2iwVadGSTOmlGaGGZHxFRwyxv7G0n7kaZSlUrAAEkoCy",
+	"RQSmMPxLNkOW5NGe9g8IxIRgBKi1mj0C45wYs3yWc5Q4KLn49nhn/8nXh2FdGIRa9ItvhMAZzRXCsvUF",
+	"E4n0iQykoySZT7hmRM1ogvGfU2aOvZWd7IpOqdYs3z7Cjvri5OL7SkfAx8oKOcrDQuV0jgWEhgvNsPbc",
+	"BZ0ycskWkcM195OKUMr1Dj1XfSrFs/fVVw5GrS+Iv1BffYVFWHSRi3Je+729Gn46jAKEVGfVsqUUMUA7",
+	"3N5zNsvoArrNCxYfESGJYom5FWZFS49xdTrOEq3DOR1ClZrwwaBuSnW6ngBwQUYZH0/0oa01AV1D5JIZ",
+	"sNkDG1huhU3XguZTBqGzDvg+h5lgjLXMCQDVHfSeAV4Yzvuc6XyxczzSLI+3CTeaSgmlNeKCqwmItBw8",
+	"RDsQfm07M2fZEidDUkwHTwxl8a9PZIYBWJds4a+WOTqdGOqHJOoq3u4Lw1Yrxe3Y9Uzm2jzZJT/AKE9Q",
+	"atl5t5ixQ+JfLsH4+sIWdLJlETFi3Ok6S8czRjpmROyyYyhRW6kl0HEMEylN7IqoxKQjZ1hAcvvIJv/H",
+	"dXEqtvHdQbdANofMCaKdg15v29uI4IByRb5793LnKekY+ojAa+bq7OB1nNL8EiK/oAZkuo0xTwd7T3t9",
+	"0bFTn9KF6eNDIT0eZNzfio/Iq5dmi07OX73EmldMpGq7S15xAQkEZqxwIPvC11GELNHfxA5mALcH4ugM",
+	"hXN1uIcZFZfQpgp/6OK88JBjHQHo1+qPuGFdcgLlu5R3RCJgo1ggBbI1E7HGF5QAtFGGHwMoPjk3H60I",
+	"ZD7Uiin6goqXXEBNwwVT5CPoKNBCDB/g/dgVAXQBKu5hx9fKupcrvoTXgSGVLyOrq7yKOrWteVitjObe",
+	"Es1V7//+r/876dVa8MXK/MsQIxgUN7aHafUP0A4uwoDDkghZ9lIyz9pMXebL0gvuBzKiiZZ5Wa2fdPAR",
+	"FMX2trFk4g55G4A1Gqacy3mXnDtJwJX0nIH2SQBesELhAQ2wjCsy99XuQihxousLLqKjkIzqaiPV7dh2",
+	"xlpgI7UegvXquOqbZUU26KbWQ7Bi211yLueW09pqX4Zfe+nHtIRRLWZ9IM4M70HYL3A/eynQ9ioWcAtA",
+	"RMAHK/V+C8VI3AXzUMoSPqUZQq1CATZH14AIC6BS8V73Cdt5HG9jqhMxdK1QVKTK4TRKqEvyhr4xBPVU",
+	"jHw0K8n4JQtrsSLKGFaQ9SsC+CCQ6cUFCDGW00Dxv2q1EkNkF4hLq8wkHyli7rSnrHCy8HUR1oBMC7uk",
+	"qVtCJDXUFY8s1xB/tyWJzTpaObxk76gYGNnHF+GlIqBp1gdhiB0iZUKePDx00Hv2NcpCQek4i8k6s8UU",
+	"W9c6xOPR/DwksuCZgTVGgHGzxiAl4jp2/v6v/wUBbryYjaXRLWFFsiVzqNRrA67MK096PSty4+cQIwf7",
+	"vbCFBI3aYa1QzOqARgAAXgeVyhBOT4odpAnoCjzyIKN0AfLMUGJINCg+6C0J6gs+UtAoVrLJA6c9FJXO",
+	"bYFLa7p02AZQrBQXrtvtxm710bJ3DXM57Is4jvviN1YiwY4D2jmbSC2Bt+/skY5lkMuMcLsvzCGNnO6D",
+	"amGVqjsCHvmbHTk6ATg8sCGR4OZ5Fr3ai3rdJ1Gv29vr7UfR2id6z542P7Ef7XV75on93pPmJx5H+/jE",
+	"wd4ePIFnwP0ewctPetEPO73ewf6KB/YeP8YHHkf7dkFXRAqcF5vnVQVy+5/YYmvZ6GZOBpw0L8wB4UcA",
+	"aKfPQgDUCqPcHav/bDKa4GiVfHbVuO6hgFLbsfk0BjCO0DLXo4y5XxliX8rT91Cbpxyil7/N6KRhIbUk",
+	"llUDcjJ860V761749GAQIkUQehttOfWm2sDyQgD/xmrxKZJIM+cpF6+YGOtJaBYOwfQ+X0LgeXFTHiAY",
+	"KGz6n0sjyn2tl46RGi2tzq1O3hdLlpgIfUr2JcsaPL683TDraAiCW5o0/uWFjsEE4OoQcuW0F9ubj5+S",
+	"I3Aa+TAy1JGrJgijBreJhxlKmTEq4DC0C8GBcIfCwSvnhfh3Ca78JfzmVwgAKZWGqs/CWe6Dyxz6IYp1",
+	"wc9h+mSDC2KDulKr3RCO3jj3MXVmvEMYsRPdbb2HGsw/Gk+9lwW/q3iZc5YwDhmIVYK2qtzoLWSd80I8",
+	"NBSMGdZqWv0lCubXUErKWvXx8N7rFbvv8BgbEFOpmuKsJNXbY6MnuuS8LI/SF/UCb04MdbYo5X1ly3kY",
+	"QfU3izZha77z3Hv2wrI1XXLcGAPh6uZgq2NuZBTQKO0gXKxhpfZLteaBT+2VGaLScBWWfgliIryV/DyM",
+	"FeqL5yw3tKWOR+MozZ9PotCfUGSVDG/VFylLuCFZQZE8CyTIhdlJ6MyXAOmLvW7Qy7wyxJWp2ockdpOK",
+	"j/piP2wikUWGeXjeVVp7/HG9R488woUNdam9cRC+Yf0QZjGmhnJrCeFXPu/btGjtR5AnXmvrSTeMYGyO",
+	"nvFQQpX8dmuosKcB0XYCDwKOK+wtqmPHwOuVLjsebngZGiZn6FoxR2dIk0uwToKpKkCc6Yuvw8WpJL0f",
+	"khiQIRWoT2by34TPBrn01kVE7VGJ0Dvk0+lxatuH0Lc9Q4ZeVeLjfAAcHGRo3YVWyRHxGZ6WlsSrmeW5",
+	"j2z4NfJMN7qVtVPg5y/s85dnnxdViCeM2yzEvUbMIC+1l/ju4TOWGJT0B4hBaI4x7Zv7SmswaY5sqNK4",
+	"p7a7BAIXuSIfMIuRW5omElbno5XaYxZ+yrm8SotQp+Tuci4QaFzmYSaW5xZlsOB2ZOvEgR5dVhwrY2i1",
+	"vzmP6sGzfbEyxIesj/AxK1ol0VwtCRZQAt0utwsbRA6r+ZS5oEfvtXeiPwCyAasFhypPJmQVqJ11Y2By",
+	"vO21oxgLSGJdKIu3u8SdBbvhZSAwxCVoxbIRsAhNLxkIiZ6DlHy/EDcG+1hUe4sOhvVKWZbaGCDTF0DK",
+	"e7A16yCzR+PIu50ITyuRPWGsDXh5wWhh5DzDEy2cjGN+htvZMOEJVWGjlpW7qSEnxqXE2a22L9sFvBMb",
+	"uX8DoB3VL4TbdTP/8vIIHhWeV6oY2mCYL4n3X8xND6/9pqk/jVoGhqcPLiNfT9h0E26+Ri+2He3+5H1y",
+	"n+5ZMx6VoQVILiNCk1wqqJiM983lHdu85AhU2iXFGSBT1jEP35VlpLa4B2i9PC2hNHFciHviGAAiQpYh",
+	"ByukdKRiKwX1ZbLy6vT1RWXqS4zNhS84X041yc2P6H4y3R5SR6iuzRc14VdfArB+S2nttN6bwgCBwS21",
+	"hLBkkVIF1JjIqUjllGB8cccHEe/tPyVDrtV2eZfG/IoJjEtWtvyxYknOtMWSA/dW6dAS2eLIR1lAVAgE",
+	"jIP71YiENvi4LyZUTRCmD8xpmRwb4W21GPbODPWB8ACg7V9IjoK+b3B4wjZFpbpjN0BNIE5J/PoB3b4I",
+	"OQ9PfOBuE4qHJSA0llS0THXFp73rLGUZ06w1fTlnV/LSRmxBS0c2fqqMWevtbZcGaQurYpG4AD6kL4IA",
+	"PKfK5dBuaukVyhlNpOI5DNeRipsT3u8gBHz3nVHtGtj/wfJq4bJ8SQf/VSD4mq24+zXJmUjVQ6LtKgtA",
+	"sQJht5riHXhooLJeX8iREcDt+Q+AEmOVyRmLbejYkCoWRtdDpQIwsKHEcvEcWiq9RLF7Iy4N/uVwzXNz",
+	"LlI5Lzvc720fQU6VzmXmAkoVB2Dan/9tn1w8J505zQUXY8yX+PnfHsOXaJ/bjrDwPaF9cTFh8wnNNUng",
+	"v53Ti7fkm6ff9Hb27XR+YEqPwf8OZqq9nX1VNh6RvZ3HKuqL/Z19FZHznQMVkYOdPVSY9nrXpIPeo22w",
+	"TzCzkBTdiOXCqqpnT6HHDCKJQrjhoxoEPpo8Mu7VlL6IfQeHZEQzhUDBV1xmaPZDACUwbjqM/QBSqi+4",
+	"uJIZmA8h2WUECMMYUjyXS5sD6L62ApfbwsO+iHE/wJwpiiyzuMnYJVflInTJsSZTaUTEqNfrBbPqC3Ow",
+	"j0is80IkmOPt0vhFeCLA+QQ5/R0s9O/SkfoiNgwBziRcK2IZehTIhxDJlbBouTSEnIu++PMJAUaeFjlT",
+	"GJpRKQoRkZyNi8y801Qfolk1hdGs4CPrwirvBz/lc6AiN/XhZ9s61hHW6cy/1hCB+QIi3Az9CI3oEeEC",
+	"LPxXK8NozcG4hwjQV+hQqPVu/Qure9fyHvr+Vs7JlIpF/U5GNVSNKgGNME1UB0R61Sjd780QAPshAsB+",
+	"BQBg/zMDAOB9WmUtZjmHAA+t/Iwjn4Ag0pI0fgEGuH+x6HnOR9pJHDZ/3l1oqLoDPiwrZtSYudmcKud9",
+	"qFrOKHU9ZF120LZNL5VAA+w3rgXmlmwhImlO5+g6K2UdkFIOQ9nBpsSiERZZGSRzMIKn3XyBMhEi41hR",
+	"CNfZRwS51kD0wFvBwKadMVs6HuMOIUc+M7z7vEEYMeIKjHod81tZ0/0LD/zCA/9/zAP5lI7Zrroa/+56",
+	"mlUZYEPuREM5BkMavrCxh6j/XJJeDNMB2h0RpGL3zJVM3ywpcq4XQBWHjOYsPy70ZOvwx/fmHNkO6/fh",
+	"NMikLrBQdVBVLAj56JTKuNruBliIhVANaWsvEU8mbMtdNPTAB8GNhouqoEm7JsuNnoorlivAxbKA5EFh",
+	"7WqaedheiF++3Oifj105HTBqBEWoq4CPbN70chmCVIUwinygQRD34/lmUqIfVXqx7rWlbpoLZUZlXFKJ",
+	"WFKvr+Jb/5A0NIwgyYD0a5EIvWjBc1LiMZOZzHjCWbisDrqwodWzU7RqhY9bs1YDO+BXTDDl4ZTgzynT",
+	"OU/ctLgiqUx8XlwlFQ639f2n/y8AAP//",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
