@@ -188,6 +188,12 @@ func TestScopeMatrix(t *testing.T) {
 		"getCurvePlotPNG": func(*testing.T) (call, int) {
 			return call{method: http.MethodGet, path: curve + "/plot.png"}, http.StatusOK
 		},
+		"getTrend": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: "/v1/trends?instrument=photometer-7&analyte=nitrate"}, http.StatusOK
+		},
+		"getTrendPlotSVG": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: "/v1/trends/plot.svg?instrument=photometer-7&analyte=nitrate"}, http.StatusOK
+		},
 		"createMethod": func(*testing.T) (call, int) {
 			n++
 			return jsonCall(http.MethodPost, "/v1/methods", map[string]any{"name": fmt.Sprintf("method-%d", n), "model": "linear",

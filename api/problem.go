@@ -145,6 +145,12 @@ func (s *Server) errorHandler(err error, c echo.Context) {
 	if c.Response().Committed {
 		return
 	}
+	if isUIPath(c.Request().URL.Path) {
+		if uerr := s.uiFail(c, err); uerr != nil {
+			s.log.Error("render error page", "request_id", requestID(c), "error", uerr)
+		}
+		return
+	}
 	p := problemFor(err)
 	if p.Status >= 500 {
 		s.log.LogAttrs(c.Request().Context(), slog.LevelError, "request failed",

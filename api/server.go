@@ -65,6 +65,7 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 	e.Use(s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware,
 		s.timeoutMiddleware, s.bodyLimitMiddleware, s.authMiddleware, validator)
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
+	s.registerUI(e)
 	return s, nil
 }
 

@@ -73,6 +73,8 @@ func TestRoutes(t *testing.T) {
 		"GET /v1/runs/{id}",
 		"GET /v1/runs/{id}/results",
 		"GET /v1/samples/{sample_id}",
+		"GET /v1/trends",
+		"GET /v1/trends/plot.svg",
 		"POST /v1/curves/{id}/exclusions",
 		"POST /v1/curves/{id}/predictions",
 		"POST /v1/curves/{id}/review",

@@ -26,6 +26,7 @@ import (
 // Defines values for CheckName.
 const (
 	CheckBackCalculation       CheckName = "back_calculation"
+	CheckDrift                 CheckName = "drift"
 	CheckHomoscedasticity      CheckName = "homoscedasticity"
 	CheckIntercept             CheckName = "intercept"
 	CheckLackOfFit             CheckName = "lack_of_fit"
@@ -41,6 +42,8 @@ const (
 func (e CheckName) Valid() bool {
 	switch e {
 	case CheckBackCalculation:
+		return true
+	case CheckDrift:
 		return true
 	case CheckHomoscedasticity:
 		return true
@@ -59,6 +62,36 @@ func (e CheckName) Valid() bool {
 	case CheckRelativeStandardError:
 		return true
 	case CheckResidualRuns:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for ControlRule.
+const (
+	Rule10X ControlRule = "10x"
+	Rule12S ControlRule = "1-2s"
+	Rule13S ControlRule = "1-3s"
+	Rule22S ControlRule = "2-2s"
+	Rule41S ControlRule = "4-1s"
+	RuleR4S ControlRule = "R-4s"
+)
+
+// Valid indicates whether the value is a known member of the ControlRule enum.
+func (e ControlRule) Valid() bool {
+	switch e {
+	case Rule10X:
+		return true
+	case Rule12S:
+		return true
+	case Rule13S:
+		return true
+	case Rule22S:
+		return true
+	case Rule41S:
+		return true
+	case RuleR4S:
 		return true
 	default:
 		return false
@@ -218,6 +251,33 @@ func (e Scope) Valid() bool {
 	case ScopeResultsRead:
 		return true
 	case ScopeRunsWrite:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for TrendParameter.
+const (
+	TrendParameterIntercept  TrendParameter = "intercept"
+	TrendParameterLod        TrendParameter = "lod"
+	TrendParameterRSquared   TrendParameter = "r_squared"
+	TrendParameterResidualSd TrendParameter = "residual_sd"
+	TrendParameterSlope      TrendParameter = "slope"
+)
+
+// Valid indicates whether the value is a known member of the TrendParameter enum.
+func (e TrendParameter) Valid() bool {
+	switch e {
+	case TrendParameterIntercept:
+		return true
+	case TrendParameterLod:
+		return true
+	case TrendParameterRSquared:
+		return true
+	case TrendParameterResidualSd:
+		return true
+	case TrendParameterSlope:
 		return true
 	default:
 		return false
@@ -399,7 +459,13 @@ type Check struct {
 
 	// Name A check of the acceptance policy: `min_levels`, `mandel`,
 	// `lack_of_fit`, `homoscedasticity`, `back_calculation`, `r_squared`,
-	// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`.
+	// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`,
+	// `drift`. `drift` is computed at ingest: the new curve's slope against
+	// the mean and SD of the same instrument and analyte's 20 most recent
+	// approved curves, with the Westgard reject rules (see
+	// `GET /v1/trends`). It is advisory unless the method lists it as
+	// mandatory, and it is left out when fewer than 10 approved curves
+	// exist, unless it is mandatory (then it is reported as not computed).
 	Name   CheckName `json:"name"`
 	Passed bool      `json:"passed"`
 
@@ -412,7 +478,13 @@ type Check struct {
 
 // CheckName A check of the acceptance policy: `min_levels`, `mandel`,
 // `lack_of_fit`, `homoscedasticity`, `back_calculation`, `r_squared`,
-// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`.
+// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`,
+// `drift`. `drift` is computed at ingest: the new curve's slope against
+// the mean and SD of the same instrument and analyte's 20 most recent
+// approved curves, with the Westgard reject rules (see
+// `GET /v1/trends`). It is advisory unless the method lists it as
+// mandatory, and it is left out when fewer than 10 approved curves
+// exist, unless it is mandatory (then it is reported as not computed).
 type CheckName string
 
 // Concentration A nominal concentration, in the analyte's unit.
@@ -420,6 +492,22 @@ type Concentration = float64
 
 // Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
 type Confidence = float64
+
+// ControlLimits Shewhart control limits (ISO 7870-2); null without a baseline.
+type ControlLimits struct {
+	ActionHigh  float64 `json:"action_high"`
+	ActionLow   float64 `json:"action_low"`
+	Centre      float64 `json:"centre"`
+	WarningHigh float64 `json:"warning_high"`
+	WarningLow  float64 `json:"warning_low"`
+}
+
+// ControlRule A Westgard rule (Westgard et al., Clin. Chem. 27 (1981) 493): `1-2s`
+// one value beyond ±2 SD (warning); `1-3s` one beyond ±3 SD; `2-2s` two
+// consecutive beyond the same 2 SD limit; `R-4s` two consecutive, one
+// above +2 SD and the other below −2 SD; `4-1s` four consecutive beyond
+// the same 1 SD limit; `10x` ten consecutive on the same side of the mean.
+type ControlRule string
 
 // Cursor Opaque keyset cursor (base64url without padding).
 type Cursor = string
@@ -999,6 +1087,23 @@ type ReviewRequest struct {
 	Reason *Text `json:"reason,omitempty"`
 }
 
+// RuleViolation defines model for RuleViolation.
+type RuleViolation struct {
+	// CurveIds The curves involved, in time order.
+	CurveIds []UUID `json:"curve_ids"`
+
+	// Reject False for the 1-2s warning, true for the reject rules.
+	Reject bool `json:"reject"`
+
+	// Rule A Westgard rule (Westgard et al., Clin. Chem. 27 (1981) 493): `1-2s`
+	// one value beyond ±2 SD (warning); `1-3s` one beyond ±3 SD; `2-2s` two
+	// consecutive beyond the same 2 SD limit; `R-4s` two consecutive, one
+	// above +2 SD and the other below −2 SD; `4-1s` four consecutive beyond
+	// the same 1 SD limit; `10x` ten consecutive on the same side of the mean.
+	Rule   ControlRule `json:"rule"`
+	Source string      `json:"source"`
+}
+
 // Run A run as stored.
 type Run struct {
 	AcquiredAt time.Time `json:"acquired_at"`
@@ -1227,6 +1332,71 @@ type TokenRequest struct {
 	Scopes []Scope    `json:"scopes"`
 }
 
+// Trend defines model for Trend.
+type Trend struct {
+	Analyte  string        `json:"analyte"`
+	Baseline TrendBaseline `json:"baseline"`
+
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions   Cautions `json:"cautions"`
+	Instrument string   `json:"instrument"`
+
+	// Limits Shewhart control limits (ISO 7870-2); null without a baseline.
+	Limits *ControlLimits `json:"limits"`
+
+	// Notes What to keep in mind reading this trend (a provisional baseline, curves without a value).
+	Notes []string `json:"notes"`
+
+	// Parameter The curve parameter a trend follows.
+	Parameter TrendParameter `json:"parameter"`
+	Points    []TrendPoint   `json:"points"`
+
+	// Truncated True when the window held more than 1,000 curves and only the oldest 1,000 were read.
+	Truncated  bool            `json:"truncated"`
+	Violations []RuleViolation `json:"violations"`
+}
+
+// TrendBaseline defines model for TrendBaseline.
+type TrendBaseline struct {
+	CurveIds []UUID   `json:"curve_ids"`
+	Mean     *float64 `json:"mean"`
+	N        int      `json:"n"`
+
+	// Sd Sample standard deviation (n − 1); null when there is no baseline.
+	Sd *float64 `json:"sd"`
+
+	// Selection How the baseline curves were chosen.
+	Selection string `json:"selection"`
+}
+
+// TrendParameter The curve parameter a trend follows.
+type TrendParameter string
+
+// TrendPoint defines model for TrendPoint.
+type TrendPoint struct {
+	AcquiredAt time.Time `json:"acquired_at"`
+	CurveID    UUID      `json:"curve_id"`
+
+	// Evaluated Whether the rules were evaluated on this value (false for rejected curves and missing values).
+	Evaluated  bool `json:"evaluated"`
+	InBaseline bool `json:"in_baseline"`
+
+	// Status Review state. A new curve is `pending_review`; a review is final.
+	Status CurveStatus `json:"status"`
+
+	// Value The parameter's value; null when the curve has none (a failed fit, no intercept).
+	Value *float64 `json:"value"`
+
+	// Verdict `fail` when any mandatory check failed or the curve could not be fitted.
+	Verdict Verdict `json:"verdict"`
+
+	// Violations The rules whose violations involve this value.
+	Violations []ControlRule `json:"violations"`
+}
+
 // UUID defines model for UUID.
 type UUID = openapi_types.UUID
 
@@ -1448,6 +1618,38 @@ type CreateRunParams struct {
 	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
 }
 
+// GetTrendParams defines parameters for GetTrend.
+type GetTrendParams struct {
+	Instrument Identifier      `form:"instrument" json:"instrument"`
+	Analyte    Identifier      `form:"analyte" json:"analyte"`
+	Parameter  *TrendParameter `form:"parameter,omitempty" json:"parameter,omitempty"`
+
+	// From Earliest `acquired_at`, inclusive.
+	From *time.Time `form:"from,omitempty" json:"from,omitempty"`
+
+	// To Latest `acquired_at`, exclusive.
+	To *time.Time `form:"to,omitempty" json:"to,omitempty"`
+
+	// Baseline How many approved curves, from the start of the window, make the baseline.
+	Baseline *int `form:"baseline,omitempty" json:"baseline,omitempty"`
+}
+
+// GetTrendPlotSVGParams defines parameters for GetTrendPlotSVG.
+type GetTrendPlotSVGParams struct {
+	Instrument Identifier      `form:"instrument" json:"instrument"`
+	Analyte    Identifier      `form:"analyte" json:"analyte"`
+	Parameter  *TrendParameter `form:"parameter,omitempty" json:"parameter,omitempty"`
+
+	// From Earliest `acquired_at`, inclusive.
+	From *time.Time `form:"from,omitempty" json:"from,omitempty"`
+
+	// To Latest `acquired_at`, exclusive.
+	To *time.Time `form:"to,omitempty" json:"to,omitempty"`
+
+	// Baseline How many approved curves, from the start of the window, make the baseline.
+	Baseline *int `form:"baseline,omitempty" json:"baseline,omitempty"`
+}
+
 // CreateExclusionJSONRequestBody defines body for CreateExclusion for application/json ContentType.
 type CreateExclusionJSONRequestBody = ExclusionRequest
 
@@ -1558,6 +1760,12 @@ type ServerInterface interface {
 	// DeleteToken Revoke a token
 	// (DELETE /v1/tokens/{id})
 	DeleteToken(ctx echo.Context, id UUID) error
+	// GetTrend Drift of one curve parameter over time, with control limits and Westgard rules
+	// (GET /v1/trends)
+	GetTrend(ctx echo.Context, params GetTrendParams) error
+	// GetTrendPlotSVG Control chart of a trend, SVG
+	// (GET /v1/trends/plot.svg)
+	GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSVGParams) error
 }
 
 // ServerInterfaceWrapper converts echo contexts to parameters.
@@ -2080,6 +2288,112 @@ func (w *ServerInterfaceWrapper) DeleteToken(ctx echo.Context) error {
 	return err
 }
 
+// GetTrend converts echo context to params.
+func (w *ServerInterfaceWrapper) GetTrend(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params GetTrendParams
+	// ------------- Required query parameter "instrument" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "instrument", ctx.QueryParams(), &params.Instrument, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// ------------- Required query parameter "analyte" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "analyte", ctx.QueryParams(), &params.Analyte, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter analyte: %s", err))
+	}
+
+	// ------------- Optional query parameter "parameter" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "parameter", ctx.QueryParams(), &params.Parameter, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter parameter: %s", err))
+	}
+
+	// ------------- Optional query parameter "from" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "from", ctx.QueryParams(), &params.From, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter from: %s", err))
+	}
+
+	// ------------- Optional query parameter "to" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "to", ctx.QueryParams(), &params.To, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter to: %s", err))
+	}
+
+	// ------------- Optional query parameter "baseline" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "baseline", ctx.QueryParams(), &params.Baseline, runtime.BindQueryParameterOptions{Type: "integer", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter baseline: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetTrend(ctx, params)
+	return err
+}
+
+// GetTrendPlotSVG converts echo context to params.
+func (w *ServerInterfaceWrapper) GetTrendPlotSVG(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params GetTrendPlotSVGParams
+	// ------------- Required query parameter "instrument" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "instrument", ctx.QueryParams(), &params.Instrument, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// ------------- Required query parameter "analyte" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "analyte", ctx.QueryParams(), &params.Analyte, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter analyte: %s", err))
+	}
+
+	// ------------- Optional query parameter "parameter" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "parameter", ctx.QueryParams(), &params.Parameter, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter parameter: %s", err))
+	}
+
+	// ------------- Optional query parameter "from" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "from", ctx.QueryParams(), &params.From, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter from: %s", err))
+	}
+
+	// ------------- Optional query parameter "to" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "to", ctx.QueryParams(), &params.To, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter to: %s", err))
+	}
+
+	// ------------- Optional query parameter "baseline" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "baseline", ctx.QueryParams(), &params.Baseline, runtime.BindQueryParameterOptions{Type: "integer", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter baseline: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetTrendPlotSVG(ctx, params)
+	return err
+}
+
 // This is a simple interface which specifies echo.Route addition functions which
 // are present on both echo.Echo and echo.Group, since we want to allow using
 // either of them for path registration
@@ -2140,6 +2454,8 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/curves/:id/audit", wrapper.GetCurveAudit, options.OperationMiddlewares["getCurveAudit"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id/plot.svg", wrapper.GetCurvePlotSVG, options.OperationMiddlewares["getCurvePlotSVG"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id/plot.png", wrapper.GetCurvePlotPNG, options.OperationMiddlewares["getCurvePlotPNG"]...)
+	router.GET(options.BaseURL+"/v1/trends", wrapper.GetTrend, options.OperationMiddlewares["getTrend"]...)
+	router.GET(options.BaseURL+"/v1/trends/plot.svg", wrapper.GetTrendPlotSVG, options.OperationMiddlewares["getTrendPlotSVG"]...)
 	router.POST(options.BaseURL+"/v1/runs/:id/samples", wrapper.CreateRunSamples, options.OperationMiddlewares["createRunSamples"]...)
 	router.GET(options.BaseURL+"/v1/runs/:id/results", wrapper.GetRunResults, options.OperationMiddlewares["getRunResults"]...)
 	router.GET(options.BaseURL+"/v1/samples/:sample_id", wrapper.GetSampleResults, options.OperationMiddlewares["getSampleResults"]...)
@@ -6038,6 +6354,254 @@ func (response DeleteToken503ApplicationProblemPlusJSONResponse) VisitDeleteToke
 	return err
 }
 
+type GetTrendRequestObject struct {
+	Params GetTrendParams
+}
+
+type GetTrendResponseObject interface {
+	VisitGetTrendResponse(w http.ResponseWriter) error
+}
+
+type GetTrend200JSONResponse Trend
+
+func (response GetTrend200JSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend400ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend401ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend403ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend429ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend500ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend503ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVGRequestObject struct {
+	Params GetTrendPlotSVGParams
+}
+
+type GetTrendPlotSVGResponseObject interface {
+	VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error
+}
+
+type GetTrendPlotSVG200ImageSvgXMLResponse struct {
+	Body          io.Reader
+	ContentLength int64
+}
+
+func (response GetTrendPlotSVG200ImageSvgXMLResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	w.Header().Set("Content-Type", "image/svg+xml")
+	if response.ContentLength != 0 {
+		w.Header().Set("Content-Length", fmt.Sprint(response.ContentLength))
+	}
+	w.WriteHeader(200)
+
+	if closer, ok := response.Body.(io.ReadCloser); ok {
+		defer closer.Close()
+	}
+	_, err := io.Copy(w, response.Body)
+	return err
+}
+
+type GetTrendPlotSVG400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG400ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG401ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG403ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG429ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG500ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG503ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 // StrictServerInterface represents all server handlers.
 type StrictServerInterface interface {
 	// GetHealthz Liveness
@@ -6121,6 +6685,12 @@ type StrictServerInterface interface {
 	// DeleteToken Revoke a token
 	// (DELETE /v1/tokens/{id})
 	DeleteToken(ctx context.Context, request DeleteTokenRequestObject) (DeleteTokenResponseObject, error)
+	// GetTrend Drift of one curve parameter over time, with control limits and Westgard rules
+	// (GET /v1/trends)
+	GetTrend(ctx context.Context, request GetTrendRequestObject) (GetTrendResponseObject, error)
+	// GetTrendPlotSVG Control chart of a trend, SVG
+	// (GET /v1/trends/plot.svg)
+	GetTrendPlotSVG(ctx context.Context, request GetTrendPlotSVGRequestObject) (GetTrendPlotSVGResponseObject, error)
 }
 
 type StrictHandlerFunc func(ctx echo.Context, request any) (any, error)
@@ -7010,314 +7580,394 @@ func (sh *strictHandler) DeleteToken(ctx echo.Context, id UUID) error {
 	return nil
 }
 
+// GetTrend operation middleware
+func (sh *strictHandler) GetTrend(ctx echo.Context, params GetTrendParams) error {
+	var request GetTrendRequestObject
+
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetTrend(ctx.Request().Context(), request.(GetTrendRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetTrend")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetTrendResponseObject); ok {
+		return validResponse.VisitGetTrendResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetTrendPlotSVG operation middleware
+func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSVGParams) error {
+	var request GetTrendPlotSVGRequestObject
+
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetTrendPlotSVG(ctx.Request().Context(), request.(GetTrendPlotSVGRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetTrendPlotSVG")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetTrendPlotSVGResponseObject); ok {
+		return validResponse.VisitGetTrendPlotSVGResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // Base64 encoded, compressed with deflate, json marshaled OpenAPI spec.
 // Stored as a slice of fixed-width chunks rather than one concatenated
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L3dchtJti72KmnOmRDZUwRBiuppkTERh0NJe7hHf0NK3fu4oY1KVCWIHBYyocwskpiWHHb4xvvWN36A",
-	"c/wAPhGOCYfvxvfHz+B5EkeulZmVVSiABf6oe3aoI1oSgKr8z/W/vvXTRianMymYMHrj4KeNCaM5U/DP",
-	"U2bU/GhsmLKfcqYzxWeGS7FxsHHGMilyTYwkV5QbMmJjqRhR9hUuznsbyYZiH0uuWL5xYFTJkg2dTdiU",
-	"2qamXPBpOd046CcbZj5jGwcbXBh2ztTG58+fk40ZVXTKjBvGcaku2cmzxTG8mzCS2R8facJz2yW3X8+o",
-	"mWwkG4JOoeF85VD+g2LjjYONX+1Uq7CDv+qd9+9Pnm3Y8ZzkbDqThols/kc2XxzIEckKzoTZziZSM0Eu",
-	"2JxsUmLfJ1wTSs6lzEk2kTxjW8RMqCFTesHsL3bBOMsHwg6RaUM0HbNDohkjZsKInDFFbS+PNIn67A2E",
-	"ny3uVzXfaKzbdrC1dafXL5k4N5ONg9297xK7D+GzXXVjmLJt/uuPR9v/Pd3+S3/7aW94sP3hp91kd++7",
-	"z/9hI2yXNoqLc1wcoY0qp0yY9h3i4XfCcyYMH3OmEkI1mUltWE6uuJkQbjRRpdDLdrHq5La7eRI6h2Gf",
-	"lmLZmVKleNgT9dm+r2dSaAYn/Pc0P8Xtt58yKYxbTTqbFTyDA7AzU3JUsOlv/qztQH/q2ONbfAs7rU/1",
-	"FS3GUk1ZTvRcGHqdkCslxTmxW0ykIpRc0qJkRJZG8xzPIzZ7QKb+3YH457M3rxNCCR4JcjVhihFKRDkd",
-	"MUVGrJDiXCeEClKKCyGvBBlzVuT2FXfiiFQDoag4Z+SSy4IaBr9+LJmak0AL8N7kkmkipCF2aeb2HnxO",
-	"No6lGBc8+6KrBweFaVmqzNIfbahhZCzViFuqCD/ihd6kSKSIYpecXbGc0EIxms8TQgcCf7JXQJaGUDLm",
-	"JgGygC/D3YCFp1Nm74+/20BjtOFFQbgY2OmfT8yWW48XMIyciS+9IEZeMEEKml1owi7t9ulMzhgpONx0",
-	"Lkh6ve2vzjb8ptPeBlARexJo8Vwpqb7ksH3HhNmee8ROYyTzOdF0rokUxZwMgDtVDw02CBV5bZMtsfic",
-	"bLyW5oUsRf6l191Spjwcx+qSsGuuDYzsLZ0XkubvpHxJ1Tn70gOEFWXXGWPudmimLpl6pEkmxZifl4rl",
-	"pOBTjqM9Y+qSZ+y9oJeUF3RUfPEB59TQEdWMZFTYlRzZvabZhOVEyKvE0kc/DZ4xy+X1pDTGUsBcXgnL",
-	"OpqS1HYQpdrG5Z7eiYQuGNo7KV9RMXf8Qf8sN/qRDgddWTLHNZGXTAHTdpt2X9N9L2hpJlLxv7Aveote",
-	"ca25OE8qzpYEfiWVpd3yguVkxKiyrMiuSmPSP/zww/ZRaSZWysioYYuyRfp7eDtFqk4FSYGcpIQao/io",
-	"NIxsnr44Jt/+9kl/a7UE3RTDcOlmSmZMa3tfngvDzfxLruAPrCi2nUDBxaw0yLBHitELkHTLghE5jq/N",
-	"oVsBnQIF08TesIGQ4zETub1KIClUxLYsmONw74UuZzOpDMtfsZzTd7AeX5r7w5V4pMkx9rptR2EvhyUY",
-	"UjQkeEKzjM2M7oH46fqwQziC76nI2IldNhh7nnP7Di3eKtuA4VZQHNNCs+ZIqreJmSimJ7LI9SGsJIyh",
-	"YGNjRThiQOOwQ2LinAsGGsWYloUhm3qCcllRIJeWAh6cMjORORzFWTSOnzZGNLsYZrTIhoW8GhpZMGVH",
-	"MJyhDMaus6LU/JK98ooenl97OqjZONjIZWlpemI1Enxgt99P2vRCFCPtlld9TrkYzqjWw7GiGS7DTyvb",
-	"7tzyl5nJRE6lzlhOteEZN/MhLWaTG0/jETz0OUFhxG76mu9ZsWwox8MxX/fNKRU5NVK1qL7HE2aFvSur",
-	"+JIx5UWp8G88apdM5Twzh3gVzIQpTajVD/JLrqWag4pl2FTfNBbo57VVwGA81yf40m61vlQpatXdUvCP",
-	"JXO/291yE2DF2rO+Hir9sEfBHuWCXbJCO/0cH30Sv7e3aCTBF9VQfyypQkZ5h/MvS1NwpoaZlBd6mD/Y",
-	"ZH0/2pSgizsW/yB9qVLoNff7kik+dhxjkRLUj/2nXz/7ZBXk6BWrAoqcqpxsnhx/v3N8/P0WmdI5sbSV",
-	"0HPKhdUTjB4IIafcKhOgXvfIM0eF9/oJoVYSIu/PyPO3R+Tsh+3v9r8lr4AKk+/6/f6zgchowUeOo8Td",
-	"4xUr6EgquKqPtCPfRDOjQVSzcikYjh5gxT+Hb+TozywzdkEr1vRWFjybr8nZnoMCGZia5UtjqTKWeL6l",
-	"K461NotanOrdGc46jKXD28vZRIeXW5hEh7daWUSH92oMYn16XqPgLeS60whqxLrLGzXSeysK24WSrvFW",
-	"gy52eLNO5Tq8sA6NszIu0rmikFcst7evneJpsplHRGw5+QJR8sZhfo41nx/jjWocjbYDu/TeLL+OyUpi",
-	"sZoQNM9J/SQu3sPanrVv/eIxii/Yyj380EaF/fFo+iw0PxfQkNUdYIHbdyfwgH7vScwDev1+f7fljB0J",
-	"WsxR/11J7ev0Go3r3U34IOiZGw3u9pnmgYKu3PutK1bm3Dy/9Hpk9zlUzKGhGltF+IpqkkvBEsJ65z2S",
-	"qlL0MsWoYXmakBQMwb0xN7XPdDZT8jL+RjE7TJanvUVvTGJHIFu8dZbQet0bbbSgm1PbUHs7DSpKDds2",
-	"fMrans2Zobxopx8zqgzPyoIqnRAusqIEvZ56Y7gC0xLVUvRanUvxtlF7n3CCyUa4fq73pfv4Up6vuYvs",
-	"0vtCO3Gy6LQssLLGDFzLbWM9pqUdnl5yeNDWrC2F5RoMImhmOHBWBbjDXsiMTKqOLA9EprhhilMyVnJK",
-	"ZuWo4HrCcnJe8ty+3CI+0ixTLOcGCE0yEIqdl4X9Efp3wuXZm7dgWSAzxTKWM2gKN5eM5uDFoYW9sjmZ",
-	"MaWlGIjgKi4Y1cy5Mv1KL5yuKRde11sUFECKWHN77RaWBllsfaVf2MfJ1YSh9SOzjZNMlkVOnAnYvwur",
-	"JUhqeQHLU7sZ0BesTIpHMkUPwtVkHh3tkZQFo6J+bRbmDDbV9gsVicNwFOyILOMBm+IhEWVRNGcwofao",
-	"CPDpXVG0TvmJtFN82woa3VEvWC3vNY8rs2p+ZD9yvm4zscOFEeUs8w7FYCAA48AV18xNLLYQLC5eF25R",
-	"EzFxp6LVjhpDr0nrVBQLlke8daaymmVyyuA6tVJQbe+NlUCW7CP4+v0zdmumjGq4s6AWxlt55w1r53/V",
-	"CP2JC8uUVLekLnu4pVpJdqt1bwuUgAPgWFFEu2agIR6QtJL2LM9DcS9NBiKNRD37S1PKs98FQc3SKS6F",
-	"/S6IZtCIYvaXSzb0ousQTfAJSYOkBm8xzfOSFkMrrdkvnEimU6dBCysCtcqmdam0RR6NJUo3UCsWRiLk",
-	"klHG4iQ8FY2xkhpj/uKOY7JxvW1HvH1JFRja7dBhm15x8dIPH7/wc4BPL2l28Wb8AqYBX/xhcS7w/e9p",
-	"dnFcmw98fXoW5oSf3cTO3Lyeu2nBjyfR3NzTOMFTnB989yZMEv3+GRMGrSFtp81bWrL4QSuI4PFDQfWR",
-	"JlYUvEH43e1H/91gfDq2DBh4Ycvlv5LbmucsRzYNT6H0bW8F7O8lLXRC+r0nxEjS7z19+vRGwfzp06c1",
-	"0fxJ26hKpduEwzcz+rFk5ILNNTMkg6fI5ohq9u1+qYoQnDCzTFacgw4XRRI92d3rFEk03P7wm//QRikh",
-	"vmtdrwdBSRlDK3rkB8/yFKN2kLrOt93DVuQtCksHMsnGY55xyzDs9a5fNJ0iI8/kJVXc0qcUrNZsOjPz",
-	"xPYzELiuGgVpwWzrtht4zpLjhKSOt4F4kI6tSJC4dsFoDgLCQFgBAWhKU5dAgj2kppUzuemWAni6f7p+",
-	"UFZJ7bTS0hZ+yyJhdCWH9c/Zd2BO69l/2mw/8c4sTvxEkKnMWbHNPpZog5AqZ+qAFFwwqsiPo35CRrsf",
-	"EvfFUCp+zgX5Eb77WNLc0oDMP5eQ0d6Hmg+im6nJSaSP24a//Ooft1x4u4kjeyjs/3IchItACDpZTGy/",
-	"/qi29et/I1NqFL/2HcdrnRD9t/+6+S//3//5P/7wL1t//5/+77/9XwlR8kpbYhk9h+tdW7J7W7vVC4uq",
-	"8urr4KKpqA43XuREG7nWzcjHiz14VkRydq4Y03YFx4qxXE4TIsjf/5f/lcwiMTAyI6KzdXjJlG5lUhDE",
-	"Gtn08XkkK14Ig7lBZBiaDuD5nd1ev9dvNwM4Az/2t+oaPg8Pfk42eN4tfjGJwzFb9ZdgVq3P9ZkVN0Vm",
-	"8Phrz4fHyHxXRQU7CfVGsvISn7KHCXSPdpUSfhpaLXX5njjdxT/Ufrwsa6wNfbfVV2cp1k0jfwUPWdWm",
-	"7fQ5plYtGNmEPbZyhBTMK3WlMAz99asXcyZ5K3lFl0twZDlmmvjpSkV8rwk5V7Kcsdxq+UjNuEA2pHlF",
-	"mLv7d+3SvrXDamMKNTt8M+yEn09AEoiJlCWkhikr/cFgNksUAJ0Vu8Yctm6pBEPE6k3zOoWHPkfSus5X",
-	"kJew9Dm75M7Ivjnfud5KfEzGf/vPV+R3RJArmDfRGS3YbScAZpobZ4BPueftXRhKoJC0KN6MNw5+7EIy",
-	"PjQFuLeKadgpQagggV6F+5ZEF46j8VQxdwxR50b3x7A70WrIeC05DX7x8YElXBJMqQtn+668zyrjZbdb",
-	"coaPRhbw+jTeH79/RTKZB4tvpefU9KCg9SwQSC8uDDtRru/d04GCObn3xvfcY5+TDTzMw4yKnFve3GYG",
-	"5WZCUloamSYutjg8/kgTnUnFDlFCr2xJnckPUpFj32AbDfJjlOKSiXaF8w/yyt1LjHKBy5k7ri3sCSm4",
-	"tuxcEl1O7V/CJ86kEX1o5+nYsP3Q+e79EF5ZvIDvfDQ/I6Ud0yZE6AhGXA4LWJ5wvd3tg2g3YC/xaIbh",
-	"h3sfV2RCpPoCSTd0/hem5HBCRV645VjcBvtI/bhrjON0aRfkiimr886Ms4grmZcZF+eEizEX3DC/k/5Q",
-	"OVOcYIQqiUdrtb8C80SQRAV5ZFH6SOrJLV4vc7fbSw/x/revftstaju1zeVrqFyLdLKmXNQZGQjLdduV",
-	"7SBYxCJtKAgdQVUMMp1npRXlCPQwqenBNS0gUlMXpOxWsySkkYkX0tl61/HrLTHGTyWkNeHhpCNZmu5a",
-	"xohq3urtmTtLObI+HYW9cEGupMp1K3m4lc7uLS8385xyOqVqjrrFjCumlyti3Mr39JJpHLcVEKub/EgT",
-	"Z7Yi9DxYuZ2FSQq2dAGXSDOR0kG1Gca+8e706Pv4rXaSVFCw2NfCH6jVhgMBpyatG+1xMvVxN2kE7oA/",
-	"DQn6OKMVbptWtNdLz/lLrtd1Xt/6AK1h9GkcpSaLFezaDLMlZko0X3qZxj5KZtURctKxXS34unfzkWnb",
-	"CrsH8Si6rDVqLevZL98ItqBmVYmQOafnQmrDM31IaPQRvL7hiHHTyPQhm0KinUAqIiRRUhrQd0Y0u9iO",
-	"/A3uATSO9+ER73NA4XdVzHcJGXqt5q1IuLSTgn6RvwZp/pa6StY09XeyiUH4DNfG28Vu0bFXeNtdh6iR",
-	"3LJpYJNLDSiKnt92zMF/BHvZHt212+//7a+bjU0FQ1Ztqbd2ah9vrWmizHDr+aDU1nHfo2CqYdxze+Jf",
-	"MSf+BY1JdPDCLWeK8tYyM0VTiQcF4ZD08T77o3YfPl48W817Ey1lGGo4xNE2LVnD6GAu3K5kgUC0nsPo",
-	"Qi0lqGdBF25aSSCsBFJte+SICHZViUnpDHOGhmjVSA9DkBFEZ1hK14sct/WnLed1kVYwbAyx6upIrcb8",
-	"Fls99Y1GPx1V7UffnoauwuQde1w38qzmLboHF1DN3N6tvTHlBcuHlSdoMQitMqpg3gjmdHN01M2o1mQz",
-	"hBtADrqLAtnqrQwSagoS92bJXs+KfJ9m4BtCj2+mmevaxm5vflq0H93SAOS0+Y6mgy+nbsf6bYuKWj/3",
-	"K1TWNor3jBdluzXJ/0LGEPQIiAfcKpqQI8KFU3bJpmKYCUl+58gh4jb8P/8byV0TW4dkF3kMHWkmQE29",
-	"XRJIh+iH57HzaQ2Z+CaTcK/FR+6iXe8Uv7raGeKFcwwucM4gx8N0jSqtQa6XS36KYdYqa0tKWMLjq3fa",
-	"DtiCL4WKczbEoFsIvL5Jsa4ebfmp5hHoBKYTzyB+PzIQuR4bY42Cf9uvUjh43TSyJVvSPQC9tleL+p0/",
-	"OY7jQQcJ2d0eUY1ZtgveskNn2G57s3l9a5dytQey9disXMAIjWaNJawuUidrQGO7ah6SJ25Oy0N/m8e4",
-	"m6XnHbs2LRYetLoxgiA0mLWnuLgg1JCRNBPCRK4PiV/FKsK2kFdMGwgzmPDzif23821TxdyrQaqv3aX7",
-	"Ga93DEN0UtVRY8ebF6tt7//AaGEma+54JTZ4uVpeYDf5vKP0jP2++eOGH8Ipvtycg+uqbejRrWyLAXS5",
-	"D1REUFSJd4olzi6Z+JAcRTSdztCnGkW5fbvfKcjtQxM5q598+/hza9hbhZv1VjErUtz63kVyfHfidYNN",
-	"GxO6nXblLNBWkSo1yw+JkFdNetSN19bDo1bKmtWTVj6FPelOW6olPYM3m1njN5CXZuZJEBL9OFqPoQvZ",
-	"WlPsiaLCfNBX5XmOTS8Y5JiOZCnyOOkgIWkhr1zIoqVCaQhCbLHi4dvt1iz78l1tWV2yTOXVrXpp8jFp",
-	"VWwYcxJkIT+/tg16SQ3D49ANaOM2AZl4QMBj6gP6MbXG3giiWMb4pWcg616eW93zPNIvVr0V9JBO6nNT",
-	"EIrA7FbHkvgHW7W36p5VLbZuZIgFW+OePWOGZei3ETn5WFKYgHPloCcywWDHZoyEBuSqmSFpprjhGS2G",
-	"oGGlZJMGj/LWqoyNhqfFt5Ktjl8/OXtDdne/23+8vUf8Ox6Tz3tBTDO2/XqY3dbEXpvcbYbj1yIh81uP",
-	"Ylk24R/kle1jjo57v7jgyLiazO2K95YkJ+KuD5ckVcWzckI0wZfsMHF+dlVvmypVyBZXycnxH8if9kgY",
-	"HJ6/hDzuPf7bX//f/3nn7NadfVzaWduJT8hu/w4dLhBke4ntGBYOU7Ls0C/u0MrcolfBHrcW5fZpRjfm",
-	"cjYRKyqqu0ZCqKNin2+KDu/iwro56pnryi5h2Y57ZQ2ZzPUxmndOHHav1Htfcv+i5hYsLI3AGjv8c37J",
-	"2pua0ushCKRDes6GE1m2xfC9DjQY/bkkl84/OuPqts7HNQN4XerboqHJ+RxwZEMuhmMfjLIoi3W3K9+D",
-	"7dRlBEZG0nhV242itdiecEmS+LYtn3L7bjbje6qDuZwW3CLSATW+7hfaEZ2bsrt9s8vHekv17hbkCwXc",
-	"O1KvmsJ0gzmmTtm6GTdiFe/DoriGiTD93tMnvRZKcrPVpCPFsIJFIcW5s6vHRjmP3KsNnVeBWFb9RfZ5",
-	"Dyb173773f6NIGG3Ij/dxfcVdKk9t5uCq46Lc7c+CCZxRQHEG32uUzonIxYHcXsjQoCKgcO+1Z7ffX80",
-	"rY10hUvRelX9ajfAOzFnICVz8jsy6pPfkNHu3/56fUjSWjKB+939FBLO0oGov2f/3vvbX6//9l/JphVB",
-	"v9v/9tvtva16djG2DIGSURcbyUZot6ORDeb00rcWfXrjW4Tv/lQ1+znZeAPIlW2hWD9MJFEUFd7KpnYI",
-	"JrZwsjzO/ZzQQksCmAXpf0wbdrWuOPR1w9p/BMva7t5v201rdzWo/WNaqVbZpuIVqWJpbmdjvJ/Q01Up",
-	"0mj6qudKlnpZYMyi0Awkv7vzG5+/lQscX13f341YLrc5KafwZptyscQd3xbmOGyYW5zvu7YQzck1JD4/",
-	"gxsiJBcGvvZNXGUhqYccIgO3RCmvu84XcFGAIyEuShUk6ZQZvB63tV5E1rYOJ3Vc0PMWkSQdsUJeDcEb",
-	"lSYkpSN5yaqP7NooOsNCCQB7AU8XEiEu/KeP9ifBziECC/4th3aulr+HpkrhDKZDb3tOewNxBhmz3pbp",
-	"droi5RlVag7twUKC5XkgUiHN0BsZ7CKlZFMzRlKkbbj96dZNeD/toTwLj/HI2L5S0vHPRe8Mq6ieVhtT",
-	"ZYe3CqkcGcpFSONJx5wVBVPtSTpTRsVwzXBF78RrU2ahhoYck+BqjjJYKIbi5TcnoDZgRBadZLOZktd8",
-	"atvXtSS4Vk+Ehyn1hz2K4rcXimkDTd2HSYnnLTGM7agolxCgiDcqWtTmnkR3dPFErKZgjkmvR8H+kezv",
-	"q63uHg59MS7zxTF5uv/kt8TBrBM04OlFy/cy4y4C5IHfEUrQuLInPKSdJUChZ0w6z+xixvuSnM4XEkKl",
-	"aMEdKn3ioNFbMOYdVFdHhgxTfWFfbiVbooo6XwodT2YU88dbAmvgASfErMKeT/9l2wm52yeWGxhJPpbS",
-	"OBwzDA1DyL0n/f5SpKq2cFvbzx/evXtL8AFIKa1Fnjypgc7s91tTzQ03RcsqnE2kMkRjsKunMv782FZa",
-	"h2oczH/Tx//+9MRrHnMfrBU35ml3qcQB8KwLxmZMHbhnDtwJSR0pjZSR1cIU/OrnGEUErrBg1w7OwU8d",
-	"L8g7D0LGfUWF3tJQtrYwCPt+48gfEEr++ezNa/IWX7JcTyIeicznCUl3rNapdwZlv/84E/AXc58yWZRT",
-	"91U6EPZuHp99D86YFJ/g7tcD9zqdMvc43GRa1XVCgWD1Ovt5rVzZU5+Pv4ZT8AepLuyKgECUVKkqLq7H",
-	"LYgP7UFLnJWMHAdqCJbKVX/AzK/6zt7Ft37v/vLW5UM8RqvbtNUumSmJxmFapORqwovYuFOz/RySFLEd",
-	"UQiUENlgCNcD4YPsgdwKWU+nwzBan09XOdMPSWr5wYQVeToQDSEeWATG0CeuhYSUYswN+u+kIrqcMaVZ",
-	"7ryFdCA6ddvz0/BRZgHQkWeTup0mWhvMenCT30g2/Mg7GmrcJrytNei+PI3bdd/9EJqHHazkzsVwxKgO",
-	"n48v3HRWOq8lOLluVFBxQTKpFDrmttaBRqtHI24v/rZwvE9j6aWZ8VGJvSjPJXeDGQlLtJ6lBQZZFrcD",
-	"BV5hOVknTDmjZdvWRjjCAGSGRqAezWuYwZASEz7H5z8Foo3fh5jrduWmQw7ezUEGa9pmLjhWU/NXzfmE",
-	"HLNlw2xiKXf36xV28Tg0FH0JxO/YN2kZql06WWowiqzh2qgR0yUgB1AxEMmO4yNj2AqHCd2SPHxDLDYS",
-	"qzDS7uPz1hy3L2FbuTDf7reiWq2ZXQKHcrhEldesJWjhrXT320MeMZYfEi7s6gB8g9UQMFoaUJVrJGr5",
-	"uLvZyOyIXC42nD9/+ZqLvHA+4tD1sKLx/KMMlZWGuNpNa+fWtvkXjOVfIM17TUTsmFa2qEYTqodTqZb4",
-	"vVfmgL+lWhOqSao5gDKOXRm+OBvcHooQ/Lh6n928minfYYA32DZPA37SGhLnu4mvBAowyIh1NAupLxlr",
-	"CjdYNHRF8svyiI0IZD1UrLsj1HvGu8DK4co880/XCNeyeI3FCJD18vfD2KJLeEPCSGOYEZtxgmpIBu3M",
-	"X2yDR+Fl/HzqmvhcfXEbr9R9LP5dsw6iHAgjiVul4CfHoHHnMKhQT3vL96p1V0qxNhqsKoWlCxXU4z2k",
-	"x97KrdUFpdKDtq4LTHmLQC1XYnsJztea8B2npUCs3hai7mewxJdnLHWDwtLxAvjRiTgz+894dTN92fXS",
-	"leIF9P7PZ29ebyTV5+Oz7+HS3TYbuLsBtnIorPvOGvnDcqk//g5EdH2n9WkZeatbYOywIlDn5jzo3o3h",
-	"Veul9dZScMPKhXO6PNIsnkO1OEkFD7NaJCiFVyy+JPrOoraPBHnGlE906q4ir7jlXW9Sqxen8wJ2wgO/",
-	"hxSoB06PXzcqYHVGxELe+ZLVu22M4S0Y5JekljHxW/VWCFq6C2UL0ZNNE9FKcrd4Ca0KN48vIdg9Q6mt",
-	"tehjy5ierBcfFGjnCkpZTWjp8QqBKw9M3dYNkYnDDFrz3tcwWTTT1L3O3jHopWKR92cqzJfiROwuY/1d",
-	"ykTmS2xJkUl2HYzbmzl4W45XNLuVy3mrtL2vSXO4irX7sa5+5UKBfHgPy0OxsUr3Q0S6q/tWw1ZGHt5Q",
-	"AKY1TKXuQDqnlwxcUZDIhhFLEESSbt06j2596KS6ateuqDnqdSfY7Xdh3gtRPSSjoZ7VSnrzbjHA7k7Y",
-	"NB1J1ZJYOagyGEJ0CDxlFeH07Zuzd2TncncHBc+dn3j+ead6UmMxFohb83Fsm9WxaCkfswWekoUot4HY",
-	"rIrqE8XGAKccozMcuuJSVaBRVRvulvFwbTZFe7EfacLzhFDtQLYAz2LMWA4wCJrwrobye4qvu/cAudUq",
-	"ct1h+yBukvvgi/fsP1mI7rsF0ap5024wX+GiOAeWVARd/3bFEX/VtdLdsHUPOPYJ+uVJWvtpsbSTg0kI",
-	"0a4AlcBFRzTvtR05dek6lni6BSiuE/rYvH5xMGTda9W4Ji27v14mXixa/COqBqvuV2uSxVraAPaub6eY",
-	"r6vDNjEuHiyj5CyTGIvn7baqFPrgSnETZQcc2FMebD8HFdhmPuWio3kXOjothf7BtY1fYAen2D58BeYX",
-	"HbA34bsj7MiO19sZ7zHv5RaYxKuQ3x5C56oo0k2IsEu2uWZ++AKq18Ki3pB+FT0cL+8X1cPuusjgb1sM",
-	"XVaMEcOuTRT7DLmnmRRGycLyWUUzw1QAKDF0hJXvUOazrC6jSnF6btm2KZVopN/teYqwJP/uXweD635/",
-	"2/75nf3j9/aPY/vHc/vl7ovB4Pq3L5YUdnwnL9htzeG30KG6y1NLM/S1pRlr8BWggS0MBTxw7XK6Zpli",
-	"pkfOJvJKEIgZlVA0mxuSUeE0DkBPBxW7o2SCPSahti9O5Eb0Udii23Emv4jd9NH4zrU4liXiuFBDrngB",
-	"yX6VJ/OQaFgrp9SgwulLuJY5N8QoyoveXTaw4pH7qxgkyHUfS+Z+bqvoUN+AtjWHUxif6rKELYzvXX/7",
-	"Kd0eH22/+PDTd5+344/763zc3WtPkH3fKnAfERC5regKcrePmp+e77yEZDH394+z2fRDM5H38coqsP/d",
-	"9v/w4afd5PGS8dRLSK0Zwg2FoXZ39L/upVg1DFK+m5hE5OxZQvTm9Rb5Hcn65Dck2/3bX69bwJn6XaFZ",
-	"djs+6EMYV99iH2jW34Cm2w7O95VDqREDCmEWDo1AzEkFoY3ltl2IswuWWmrgqOGjU+2hjTvKaW50b/FF",
-	"9+kFvI9jrxdmWbf6Tmd8wfXLRDysva4LQ6rSPlrs/uMxU0xkrL2Ow6+fkd8RLOYwlqXAEg6utMfWjvvH",
-	"LS2Z0GDnQh9ds2zZXZNs148e7lr854/2+dWVOfiUm/adsNz906+ffSK0KOQVVsYM6/BINyuKdjR7uor8",
-	"SzCCMnnJ1NyP5w6lNe5s0dKyXIYZ4tIqYOke6VDiOJNTpp3BuZOMExlaHLW8Wdz2h7ixWAv3Kt7ZsOjh",
-	"YobpuajgdYwj8fn6crEhTgEP8fGtuc5Tyyx8erd7smHeGzEIfYba9B2q9Dbrb3WvutXY8EbFq+Z0bjC5",
-	"LNzpRZbJBTecFinZPDn+Hk37Vq/iouTiPCWbx/bbuDBzPKKYU7qG8BS697uzzNDkSWimdmCiJhvz+kIl",
-	"vuJpdxes63t7g42i3sUaW3vLWJeV+K0+/T1GcF0L33iVQ/K1K7nVSKfHzEjST4JaEyzdvkbr7as1dKrZ",
-	"cGdG+UXtLV3IvuMQS/TeZr3XNe8RlEhdkr8gDWsv60irgrXoJb/gsxnLW4vWLlomyumQjvRQtTT+3/7z",
-	"p1+fPv/kNZ5asbcoWVUvCGhtw7lT3as7AXbFCF3RdBO/3G5tl29nazHYl4xqs431W7Sv6drzCiMpAUmD",
-	"+PqmTnd0haYx/XcgKvSNs2f60FfFzSZSwttT6VLOYQu1l/v0lBYF05DlTuR4IOhIy6KEZMa41p6+cePA",
-	"kIeedD0QjeLHlmakC6Vf03qGqpDCruTuzjX++a978Pcc/3SfNPxtJ9eRf4Vlf43Nh88n4vJfmp/3Gl/8",
-	"p+bn5gNntS+OYFifIV8sKxU38zOoEoyo5owqpo5KLGDQ4PT2a6n4X4BKHJDfw7NIczMwMLnE9B4Bc5A+",
-	"IGnly0gTKM0cnBkAsVNzZwBATz7lIj0kmjEHLwFhiFyKR5qk19v+mG+jWchtDpY5tuQDhlRd+4kxs43P",
-	"n8GlPpaLU4ogDDDWRteye0sBR6qgI6mcGSCSY8KpgrL+eiBo7eeFwOHE1+riJgT91Oq5VviUAzED2FyI",
-	"rCCaAQArZO9xk4CbGJtKyKyQCLd9yZSOAzg03JRSXAh5JXRC/nTks6Vsk1TULH4DMRDffOPr9NhN8nEV",
-	"1GDKee+bb0iFikm4DsjR8VwGAqCtzi2vB2hrpjj1HmWqmFdZNMkVvRKuYnQ5KriesJyclzynYMOFtqp1",
-	"x8WxczOO06Or/NxecKlgSvYbpxmevXlLDL2wy6hYxgBp6zDI54Kx3K/FyHKTjyUtMBZrxpSWoZS4E+B7",
-	"5DnNJgPhMvRFHofJBKuYYjNGjUawFUtJvPCVwur+6lfkOJSO1gOxjZARiJmCISVQ6FzQCzbMoNd33H97",
-	"+uKYPH78+CnZTJGjHJAgPKVbyUAQ2+P7d8dECiJLMytNj1TCAhxiDCWzw/NlTqxuT5Aq6Z4dEaIk4Y+u",
-	"dPfJ8+fPt3/7ZJ8gA9M9HLazryN+1Wv6GoIXsNz3/NAOh7rwJCxL16itSp01DRGQY/NZhUZObSvNaquh",
-	"vjEFM8gWZEZZjpomLl2REm1nLVgBM3JyLUEGp11QEXG3Aldfk820TWQ5QFxNANoixMtQoSm7SFkhtb0A",
-	"lh0WRUI0olwY5FV2/TJqsondRTHH3mxbwNPsnVZ2tLkr3gcHJ5cZ0p6wZkiwRuyQZAUUFid6YpfMNqQN",
-	"LwrCz4WEHYPJALS7w2q2s0wIpHhC3WVFXDiZJjTP3Ru49b6kYEX+dCjton1tF52EojzCo5rBSsAJrM7b",
-	"Adm1LP/bfXJ0dnxyQgpmDFM6ITk/t9cUIkd6lt4P7R8H9o/tNMEpUYTZgbxk6l615wveJZso/pC0Ot7p",
-	"Vo+8FxwCXMBRh14921rk2KMqxJT5C2n5mW3EV6G2cwK2MhBICtOdy92UKGlFDUs1NFmDBx659DHwG9rF",
-	"FWwgpCJTu1nYz4EdyCf8QD6BVe8TOVfU7vKngfi0vb0d/rcPxuyUfIr3inyCHDBkWRAbD9vttihB2yL8",
-	"aO9Ugg/X0DsqGcnq8TugtbtOY65NPpGXJ6/OANntHDmd7RzaR24eeFLEi5IGBF7irZcAX8vshW8BuMXu",
-	"6zIC+WQ5mTZ0PG7tFrlbxdr0YUiuhNrM9vIe+gpPsUSvWCZVXlsT7UaAQgn5ROAfXBtgSnbaIEECSbXd",
-	"l54B4Shg+6GNgXhek2VIwbVBho4HwQH/5lOO7BbVCnZtmLDXdSBaRJ8DQt0Jm8gCUEi++caSGSnYN984",
-	"SXhqKSQ0a1je8zMZCK5hCCwn7NpK5NwUAB+vgIha+QTCUHUgafZpz/QLZix3shz6zYyJo7cnxEuSPqkV",
-	"SJgcE+quUDVzS7ErIfOA/PghHYhN387jXh+NvtpdClwoKYo53I439qU9WF37yskzy1QFywxBEVBbYn1E",
-	"phxAlRMypYVlmAhlgzQfTsGlvGBug+yI9vu7h8iyuP/WcRor1LmVwgHB0497JN2ZQJGtv1jatQN1uvCf",
-	"U2YUz7QLj9uRMybojPfmdFqkAwGyh5Cuk83ULxwsxJYnTM9Bm/FUCPED7UYKsoAQt5nCVuGB3XHf/ubP",
-	"GkL2kFYOROqwsiylbMFxS1F7Sp0c0gbrdmCZhIO5GsncMTMrPtkRffu0v7sSAov1zoGLpjvhxu3s1Qti",
-	"p2QzHWwMNqAck33zaiILfH/rEHs/PvueZKwobLedQbUSkooUGvQFA2eTuYaSKxDfsQmiJiETRnMGywxf",
-	"7255p63r6Lc7XtRL3XAC8BaM5ya0Lt/cx5Kp+QHYyO3YZtRMDniOzC/FQRyc5Gw6k4aJbL79RzaHeGp7",
-	"+UJUw5RrK98KBwEWLz00hAI3194iopCvOrSPdMcdtVf+ehA9F4ZeJw410GpPjscjt73ksnAk0fLR/X7/",
-	"EA8PEi6uB8JKQNuutVHpwdWspFYWIfDUSj08Y2TT6h8uk6tSgYLQMxD2zln5I1xbX1yOEsUgLpxXa0Qu",
-	"2Bxkwf29Pct3n/T7qL5YujEQAwzoFLTAqzTYQPI8YZa3eXjA9NCZcqyAeG4H4k6wk9QKaY/wawnU3nbm",
-	"BGr0FQcgQq5rUkZQqVB49LJAHWvQSsTx8knBQIwNfi8Q/IBqX7CZcZHuBc+YC/3GCJINK7sqzgxV8wgw",
-	"MFZyMf1Ru3SnXr/XdymBlkZtHGw87vV7jzGCYgL2AE/l7L/PWVuog9BXVrza6/cjMLOZkhnTGohWwS9Z",
-	"j7wG8clTvl7IJeZSnOQbBxv/xMwfXFcNy+Zev+8AjI3HjIoo3p9deDoe1JtsZq42I1gEGvOAYdrVeIL9",
-	"tTUTxrXja94Dpd6IjSkbBz9+ALMbFh/feMkvmWDgyjeQd/FjNXONdhjPM5Yu8lsl7flnpcYwNnY986g+",
-	"qA821/cQHwG4OGCeVry13MdcSXWBJjaX36mJUaU2eKYW9uSVG9mNe2LHtTMrKG/sRtMbubDwroeHWPpo",
-	"2aZhHks3IebUS3fi3YQRL6wEXS2iEldUk1HJrVSr5LTTsXfNrXfs/SDXWOh46FbO8sNPyH86evXyIdb/",
-	"XazRrlp6FJ860hhnc8+poZafE+p+9TYgx7IsvyyVggk+6T8eiMot0NyV9qN/ioP6WagR9G0ZEByrW++N",
-	"fevxzW+dIVd+L+gl5eidWLWtp5BwcQNJC+liS3f1m2/ASnzwzTdNw/CCzieVV12AqWJ8OhEMoEXHXFlZ",
-	"AeALMVYkjZJFUjCgOFHWsX1BRvOBSHke/9gjL3gBloJMTkdWBARZ6ej1s0OS2ssMgikXznuI4r2R6UAE",
-	"j2KCdYqlqI+gR/7I5poBrhYXznAwo1o7VonAZwMxo+fskSZphKGVAkaX/7cDcwZcTUbGONzDxgtWFgPv",
-	"lHSFlalGRC8rGeFDdiJyRj+W7BBkjbqRLmcYsijVQMAv4MCluVsQuEa+8wT1oX7bFXrJtTn2UBVBVtYQ",
-	"4Gq5xAZIwj7S9qCeTN/tAsX+0M9Je7NRydl7azPkBd1fkwHxuFuTNYSMZW1GSBedGo0ANBYKzFFVcHvb",
-	"aic7qe4DwDC0jMHenNoAurj/F/t/SU1L7+HmLevdyHvo+y09Z0TzvyztxZdbrDpybo6Ngyf9KI5g7+b6",
-	"8m3yRv1+B4RvJBt4tZcMLADxdT5UGlj6hwdkenByIeSmhe+9EQwmZGeJPAB4334X3vd7GsrCwSu7N7/y",
-	"XlBnzmU5vtSBW76QasTznEGQwv7e05vfeCflKyrmbnT6Z+LmgX8fYzgptwrsPOLhjl9/SDYWjI2QltYp",
-	"E63O/CFX/AEkAIR9Bf17zE2PnCCXCi5JKTKWVPzSpZTbW5ETLgYixW+GThnGDHaAHAcDqGKh5nC7bIjI",
-	"SgtsrW1jqkfw6Ds0gYe9X8vkf0Qn/oVfqf7+zW+8luYFhKP+g97BIw/2YY+o1VrAse/iA8B/g5W5H/52",
-	"7oCzpNMdXX0nvakrs5J4jmDChI5kaWJ8e6ekqVIkRBZ5EOCdQyHy3IDxaDZjIt+WopivuolHMIVf5HWE",
-	"ob2USzVyRM79eiV/AVcyOnrgusockfc30F2mZTdwjSsX4OHhuM2kvtPFw1h4TajViHHUCVHMhd4FJtjI",
-	"mnCC5EBgLUxahOAKwIEGVlnVCii4QI8Z1E2ZW36NzQzlOD20iiIjoaHAR30kPHgSfOlXJ3j0yKlrvTEM",
-	"55vFN8Inq71C8RIfLOOqGW4yR3agrYGA8HqIQreabRoCDlOy6fw/7YUPthwBCsvjHCapr+nqFv/QYaU7",
-	"f7bPjSvFI+09GgNxzgx4PtC/7eOjuEmC48HP9pEOYUlUITuYQBUlPRBVuY0eeSOKkAOjLGFFcorndEK5",
-	"IBkVmO96yTXLyeZ+/2kyEOB8SV2+hx66t53757QsmCab+3t7rpbTSMFfXk6qHIOBTdn2DkMU10AgTNHJ",
-	"8R/Iq90+2dzr7+1tJc7uEAVvnb1567NULLHfAndiCp6dodu69ADHgNsKkULICeHbKnCUQyQFplHoChkI",
-	"GnSHRQ81GH7ttgl2lR4QakjBqDbwqi/agRFJ7rDRAoyQ2M6UXg/9L8OxohDEgM1MpTZk7wn5dXBp+Th3",
-	"P5SBIFWz9qgV9pTWJ+GHkMlSGABiB5+Pa2rLjYKLIYbbDC/YzMTTqIUNRg+mLj7HjiGUB9b8OvFbtEUu",
-	"GJvB2YQRYE8jaSZYynDIRK6HgrHc12o5cJOxw63dNbsAYO9yDlRX6cefcF/qB/dTUKXkFVq8oCM7F3jb",
-	"dngIJijbiIuywbG4ESQQ1WUZt3HJND684GoyR6ipcyaYohDyk/oaM8GgBYu81SY/IOV87qnxHSUIYGO/",
-	"l/n83oSHMLLA8uuh3qGWRU142f0yukScfod+a+j/pcyW5Gy8pWYSA+ojYn/aYI6QDl2fYrLKzfHvTHDq",
-	"dxCcjqUYF67+7f5uhzG9pfNC0vydlC+pOmf43pMuC6DLGcLOvWI5p+/mmOS/v7fX5WXnBbay1nNhuJn/",
-	"o4qGz5vhYi6PAJQ26iWvCELbi4wfs/sQF2eFNL0Z5mQ8hCGFThkEz4GzATrTl+epm9nb1/9E+JSes1UK",
-	"2NtCmrev/+khVTAYw45bhRaT7ogLiuasLo5QmOVXpetnv1n24ETaVkLwFD240cOf8ge4UmdVIG0QA71s",
-	"SKZUXbDcichOQ3Mzh6yOUBh8IEZU5KgwgCbB85IWZEYFKwhUpgaFBa9miCuiGB8CkT8DIegUhExsP2Sh",
-	"RBkutnXnJbrpep99/wWut748/831rSIbvl7oX+iFxnPz8Be6CjbvZlOpR7U37vDJQjqVnVM5I0aS3T6E",
-	"F7rchyiPy00YVD2rMA8EbRYBx9tc3fKqQDo1kDbvvk8r7Q20K6/rbfXIQgRij7yNkr4gLaWZmUXF3Kcv",
-	"gUd/Apx9jGCf1Ligb+3rE0vlicJhDWVkIED70qC4IWlyCM9E07mPhMTEnwJSHkqjee4gkl1qHMsHAjVA",
-	"qZCQEYrWbheg4KzimOYz5oZsVvlurh+I9hyI/f7T5VpdtCi/OL2uGttail3/QQbg63i2e2OdDWsWkknA",
-	"fOajXV3N0K862Fcd7MG91nGyAKSq+dzWiL3EXKAjj1nBU1QoS3hXE/0reQnSGZI3yHptGpYta0l9WWds",
-	"wNdjThFfHV1raEOrKh46vGhUSLFKYRumH8FaemAjv6HKnDPC0cqUtrm/txeIshRsq0eOagwFinWTQopz",
-	"phZnBjFiTw9AjoWsW67JGNC0BuIUwDR17CKEBGkhr5B56jYSj9i09+GFv3/iXq9M+IUJ+1KL3Wkof/mV",
-	"WH8l1g/uS22mXD6oO3UBWemeNXqMbKhly4YwhxYFACKQTbosJvb7BkjTLzBoYQEda4nSXVv4r9r3z3/v",
-	"vm/P6G4NZ1hhm+6ohidd1OwaAMzye0ZOomR22+xALElPd+jFI2qyCSbqSUE24462DkOO+EBMqQ9KAh+r",
-	"RyKzt3RihabNxqCca5xRJ2kFDX5EswsU3SpZZXPKKJgG0rBJaUKEHIhQlMdBEkxnAJvEjUvBrOe+HhAP",
-	"qjgQAEEKWIsedBSa+PWzm8FJyYmBxAKmQRkfCEDR/Pu//ZeGw7gCmunFizw0smCKOiTHNEEBcSC8KeJv",
-	"/8den/yajCVmaL8/I8/fHpGzH7a/2/+WvMLwku/6/f6zGAenvo+Hi7EBLi7Fzl7xHNYo8XFiA1GDfYGv",
-	"fSyBjxs7qtIrYWk9RirmP3gx1Uq2Grb2yKP41s4XRF5IB6ARkEbrqAXER58PBLW6ryvSZIk9KYXhBSQF",
-	"Q+p5vXFI0g3BOYeEDoR/DgMSCqzFb0Ag9734GlAuggTtvXG7yUAAmgaI+Uoiso/30SP2pCtcRAEcnVld",
-	"QGgMZ3DHHIsswcLt958SZzLGmJbCZbn4HGWU4FEnwakMhLs+QyHNMOgrW0nQdaogFsDaESTEPgV/WdVI",
-	"HKFSNdGwBrlnJ1QPx9ykWz2yv7d3YNe0tuYOwyfezSjox/ZZO/qw1sPo3EIyP8VQmSUmpu/r0Jq/LDWk",
-	"Dd7xC4cPtAG2dpAkQpCoLI296F9Vlq8qy8OLTqcoI9B2VJwKFKejBBXX8LlBlYlgfHZ+qj589jqOI4kP",
-	"5P2PrDi+9qADPmj4CUPlXYMcz3soBkLIq62DCL0RO434mEFbPxBkeBe7UyGccSA2hTRdmAXKU/Zhz23Q",
-	"l4rJoC5jESPHwZKWIFg/dYJRHoHn4ayuKMYRgmHK1d7U3uNCNItjQHFiQy6GAFAEIE8CLG66zCZNjhcQ",
-	"JmWRM4hH7ZEAj1trf0qvse0hPWfDiSyVw4+JBBiuXTtmQoVbQNyJBCvWIuwcDKxH9vv7oTKibUUxgI+w",
-	"D4IB/0qqdsuad/meiBcScbrXY2uVGL9xc0bm8jCvddIpF7nJVGJiu8fNOwRzIvqnRpoJsyxhjpr18wUf",
-	"PJnHb8WqnJ5q679q4T87K1ncFXtVqTuW96qC38RC7tctfqS7VYNt2sSqdRhjVvkCc0kdUUgX2Iu9uoAH",
-	"OxDpPz3HrjtyTKtEAH4ZrP7Lk1dnAYAL3CLZhR9erlsd669lc/zgytgfiJBVgS6S5TpCRQ/v4pCOqeoD",
-	"6QttA/3qnf6qPXzVHrqQ/D9hIev5Ctp3r25qhzPZSSdoCPwFQinEeWAopnqItdEcMoCW+S9eua4fkABg",
-	"F6s8D27+X9EB7t91VxQR2m/9rMShFv4ELju/6zgJYhED7KT2/JHM5TWGk7rbI2+lNojkgylikMdlH0a4",
-	"YDEfiKoeEVrrrXrXPPO+adQcr6NfNvf6u1uHA8EA8ERVU4d0xCQyseLtjoMyQiMc4AgGIkrBrIbOrmlm",
-	"XDZfY1xYkNuAUGTpyED4gQonnGCYB4ZMcGNH24fMRcU0Wq8LNjYEwjTGAxEZ+lMARI/QEKr6UdoDtNeq",
-	"/OmJvIIpFAXksfXIkTMAVGjlWMMR5seFFXBRqd3c39tbYTZ95dFzHkKMwcZ/JsHFzayFZqHOmtHCG1ca",
-	"O38YdhhwLNBYCtTtPg2yy8eH1867YtTdkrs8I0kjTrXzkz02/96yu76KYr/AQEG4PIEaJZX3LRZ5sM7K",
-	"usysLn25M30PQljiS4rKAFMTJ9mny9E5kZK2wavNqJlUli1XTfchLG5HRM9Yxsc8i8hZROM62N2i1Llq",
-	"RCuRsj78LGS8Ej2/2tl+/pv+RvjduP1VdmrW+s6V9iAx4NyOxFQAEJXMiO74AF4QFYhMAPMB4WCszgju",
-	"emlogWYMwIr/mG41UXPeyqIIGB9Q76aChWsFk4RqICnZxAt5UEW0AOCFFX2beJKEFld0rolmhmyCe9bB",
-	"igNSG1QH8uqullDSxGwlAwFmvQnVw6lULPXeCAbwkVADw831iinm4RdIJqeuWMFAvIA4EysT1UekGdNu",
-	"PRFkyEvUUmTswDcLVUmwrBriMCDsBnpQGFdxLIR2/YK5kOK8wHeDcRqAhe768v6lMFCstNELRR7wMa7J",
-	"lbK/C9911J0rfEMRx9wcQLwTSPcDoUoIF/H5RRDX1EN5ME1I6r7v0TxPD0jqBEWMlkDjcIim6PmApmS5",
-	"U9M9Gf+abgHyZ6vzLbwQfooH4asSVyAqFbqJHbo95b7uaHg49vlJgQUcWs0Op9DQc9jcRY53G9TEQ8eU",
-	"qqHYG+AfHTMs4dcK1mnv0PqwiveKLLnb7zdKVCY/H8fEzXnB2gM8YlTHfwy8q39EsRdZiz22UO6rFrlW",
-	"C7vGb25nd1RlZ0dSVKpoIUMaKu054CSyGRXSqxCnHKVDf/8YwoEEq4rqWQqF5ogGwNWjgPsdSdeen1Y0",
-	"+IBQstffHYgpo0JHhXxqxB2iC0vhMmVEVB8NC6iMSuODJHFkVYkOZ/uRCkMPLedkCIaTACRQ2FrCPpa0",
-	"SIiRkowt/UYIny10RPGicO6oxJfEcuGLcQ5PPTvygCh6NRA5NbTC4jITJa8EoVd03iMncQEYsrl/fb3l",
-	"6x86O0QEEDVic+lAfRy2Ohh4DuI4hmmpfXk3RC+0HzGe1e9TBZV16C1GdklCWrpH9CroiBWA/EeVBp4+",
-	"EJsL0EmanEusMhOF3uJhMVfSlylzddD0xG4ZheqEVdTtob8kPK+Zs6KSja4gz69IVJFlIM6YFW0WirQY",
-	"Sab0wo7QQDK+pmOG2N9Y2s9ejaoUKlYAAklAuyICUxj+BZshSwpoT3v7BGJCMALUWc0egXFOnDM1Uxwl",
-	"DkrO/nC0vffk24O4LgxCLYbFt0LgjCqNsGwDwUQmQyID2dSSXE24YUTPaIbxn1Nmj72TndyKTqkxTG0d",
-	"YkcDcXz2fa0j4GNVhRwdYKEUvcICQqO5YVh77oxOGblg88TjmodJJSjlBoeerz6V49n75hsPozYQJFyo",
-	"b77BIiymVKKa115/t4GfDqMAIdVbtVwpRQzQjrf3lM0KOoduVcnSQyIk0Syzt8KuaOUxrk/HW6JNPKcD",
-	"qFITPxjVTalPNxAALsi44OcTc+BqTUDXELlkB2z3wAWWO2HTt2D4lEHorAe+VzATjLGWigBQ3X7/KeCF",
-	"4bxPmVHz7aOxYSrdItxqKhWU1pgLricg0nLwEG1D+LXrzJ5lR5wsSbEdPLGUJbw+kQUGYF2webha9uhs",
-	"plA/JNOX6dZAWLZaK27HrmdSGftkj/wAozxGqWX73XzGDkh4uQLjGwhX0MmVRcSIca/rLBzPFOmYFbGr",
-	"jqFEba2WwKZnmEhpUl9EJSWbcoYFJLcOXfJ/2hSnUhffHXULZHPEvCC6ud/vbwUbERxQrsn7dy+2vyOb",
-	"lj4i8Jq9Ott4HadUXUDkF9SAzLcw5ml/97v+QGy6qU/p3PbxsZQBDzIdbKSH5OULu0XHpy9fYM0rJnK9",
-	"1SMvuYAEAjtWOJADEeooQpbor1IPM4DbA3F0lsL5OtyjgooLaFPHP/RwXnjIsY4A9Ov0R9ywHjmG8l06",
-	"OCIRsFHMkQK5molY4wtKALoow08RFJ+8sh+dCGQ/NIophoKKF1xATcM50+QT6CjQQgof4P3UFwH0ASr+",
-	"Yc/XqrqXS76E14EhVS8jq6u9ijq1q3lYr4zm3xLtVe///m//O+k3WgjFysLLECMYFTd2h2n5D9AOLsKQ",
-	"w5IIWfVSMc/GTH3my8IL/gcyppmRqqrWTzbxERTFdrewZOI2eROBNVqmrORVj5x6ScCX9JyB9kkAXrBG",
-	"4QENsIorsvfV7UIscaLrCy6ip5CMmnoj9e3Y8sZaYCONHqL12vTVN6uKbNBNo4doxbZ65FReOU7rqn1Z",
-	"fh2kH9sSRrXY9YE4M7wHcb/A/dylQNurmMMtABEBH6zV+y01I2kPzEM5y/iUFgi1CgXYPF0DIiyASqW7",
-	"vSds+3G6halOxNK1UlORa4/TKKEuyWv62hLUEzEO0ayk4BcsrsWKKGNYQTasCOCDQKYXFyDEOE4Dxf/q",
-	"1UoskZ0jLq22k3ykib3TgbLCycLXRVwDMi/dkuZ+CZHUUF88slpD/N2VJLbr6OTwir2jYmBln1CEl4qI",
-	"pjkfhCV2iJQJefLw0H7/6bcoC0Wl4xwm68wVU+xc6xCPR/vzkMiCZwbWGAHG7RqDlIjruPn3f/svCHAT",
-	"xGwsje4IK5ItqaBSrwu4sq886fedyI2fY4wc7PfMFRK0aoezQjGnA1oBAHgdVCpDOD0ptpEmoCvwMICM",
-	"0jnIMyOJIdGg+KC3JKov+EhDo1jJRkVOeygqrVyBS2e69NgGUKwUF67X66V+9dGydw1zORiINE0H4ldO",
-	"IsGOI9o5m0gjgbdv75JNxyAXGeHWQNhDmnjdB9XCOlX3BDwJNzvxdAJweGBDEsHt8yx5uZv0e0+Sfq+/",
-	"299LkpVP9J9+1/7EXrLb69sn9vpP2p94nOzhE/u7u/AEngH/ewIvP+knP2z3+/t7Sx7YffwYH3ic7LkF",
-	"XRIpcFqun1cVye1/ZPONRaObPRlw0oIwB4QfAaC9PgsBUEuMcnes/rPOaKKjVfHZZeO6hwJKXccW0hjA",
-	"OEKrXI8q5n5piH0lT99DbZ5qiEH+tqOTloU0kliWDcjL8J0X7Y1/4fODQYiUUehtsuHVm3oDiwsB/Bur",
-	"xedIIu2cp1y8ZOLcTGKzcAym9+USAk/Lm/IAwUDh0v98GpEKtV42rdToaLVyOvlALFhiEvQpuZccawj4",
-	"8m7DnKMhCm5p0/gXFzoFE4CvQ8i1115cbyF+So7BaRTCyFBHrpsgrBrcJR5mJGXBqIDD0C0EB8IdSg+v",
-	"rErx7xJc+Wv4zS8QAFJqA1WfhbfcR5c59kOUq4Kf4/TJFhfEGnWllrshPL3x7mPqzXgHMGIvurt6Dw2Y",
-	"fzSeBi8LflfzMiuWMQ4ZiHWCtqzc6C1kndNSPDQUjB3Wclr9NQrml1BKyln18fDe6xW77/AYFxBTq5ri",
-	"rST12+OiJ3rktCqPMhDNAm9eDPW2KB18ZYt5GFH1N4c24Wq+cxU8e3HZmh45ao2B8HVzsNVzbmUU0Cjd",
-	"IHysYa32S73mQUjtlQWi0nAdl36JYiKClfw0jhUaiGdMWdrSxKPxlOZPx0nsTyiLWoa3HoicZdySrKhI",
-	"ngMS5MLuJHQWSoAMxG4v6uWqNsSlqdoHJPWTSg8HYi9uIpNlgXl4wVXaePxxs8eAPMKFC3VpvLEfv+H8",
-	"EHYxppZyGwnhVyHv27bo7EeQJ95o60kvjmBsj54JUEK1/HZnqHCnAdF2Ig8CjivuLWlix8DrtS43A9zw",
-	"IjSMYuhasUdnRLMLsE6CqSpCnBmIb+PFqSW9H5AUkCE1qE928r+Nn41y6Z2LiLqjkqB3KKTT49S2DqBv",
-	"d4YsvarFx4UAODjI0LoPrZJjEjI8HS1JlzPL0xDZ8EvkmX50S2unwM9f2efPzz7P6hBPGLdZinuNmEFe",
-	"6i7x3cNnHDGo6A8Qg9gcY9u395U2YNI82dCVcU9v9QgELnJNPmIWI3c0TWSsyUdrtccc/JR3eVUWoc2K",
-	"u8srgUDjUsWZWIFbVMGCW4mrEwd6dFVxrIqhNeHmPGoGzw7E0hAfsjrCx65onURzvSBYQAl0t9w+bBA5",
-	"rOFT5oMeg9fei/4AyAasFhyqPJuQZaB2zo2ByfGu103NWEQSm0JZutUj/iy4Da8CgSEuwWhWjIFFGHrB",
-	"QEgMHKTi+6W4MdjHodo7dDCsV8qK3MUA2b4AUj6ArTkHmTsah8HtRHhei+yJY23AywtGCyvnWZ7o4GQ8",
-	"87PczoUJT6iOG3Ws3E8NOTEuJc5uuX3ZLeCd2Mj9GwDdqH4m3K6b+VeQR/CocFWrYuiCYb4m3n81Nz28",
-	"9pvn4TQaGRmePvqMfDNh03W4+Qq92HW081PwyX2+Z814XIUWILlMCM2U1FAxGe+bzzt2eckJqLQLijNA",
-	"pqxiHqErx0hdcQ/QenleQWniuBD3xDMARISsQg6WSOlIxZYK6otk5eXJq7Pa1BcYmw9f8L6cepJbGNH9",
-	"ZLo9pI5QX5uvasIvvgRg85bSxmm9N4UBAoM7aglxySKtS6gxoajI5ZRgfPFmCCLe3fuOjLjRW9VdOueX",
-	"TGBcsnbljzXLFDMOSw7cW5VDSxTzwxBlAVEhEDAO7lcrErrg44GYUD1BmD4wpxXy3Apvy8Wwd3aoD4QH",
-	"AG3/THIU9H2DwxO2KanUHbcBegJxSuKXD+j2Vch5eOIDd5tQPCwRoXGkomOqKz4dXGc5K5hhnenLKbuU",
-	"Fy5iC1o6dPFTVcxaf3erMkg7WBWHxAXwIQMRBeB5VU5Bu7mjVyhntJGKZzBcTypuTni/gxDw/r1V7VrY",
-	"//7iauGyfE0H/0Ug+NqtuMM1sa2xrFSWUthTNWJUMXVUmsnGwY8f7HlwLTYPwUkUPV1icaoISTwy82yC",
-	"hcvHRUb4B6XQLaFqL1yB0Kgt9CEnTuuOHBqzQlpJMTTpHO6LjS6pbehuZi0IMW4vxixbbPRPRx5CF5IB",
-	"osJTdZAHdtX2cmV2rKctJsG4ENn6gikwqzIea704kXqhm/biGElli6yylJqYqqH1j1lLwwiMBOg+Dn0g",
-	"yFhckQqDicxkwTPO4mX1cAUtrb49wZMcP+6O8uLTL60sx3RIoYR/TplRPPPT4prkMguxcLXwN9zWD5//",
-	"/wAAAP//",
+	"7L3dchtJti72KmnOmRDYUwRBiuqWyJiIw6Gkae7RD4dUd+/jhjYqUZUAcljIhCqzCGJactjhG+9b3/gB",
+	"zvED7BPhmHD4rn1//AyeJ3HkWplZWYUCWOCPumdbEzEtAqjK/1z/61s/bSVyOpOCCa22Dn/amjCashz+",
+	"PGc6XxyPNMvNp5SpJOczzaXYOty6YIkUqSJakjnlmgzZSOaM5OYVLsbdrWgrZx8KnrN061DnBYu2VDJh",
+	"U2qamnLBp8V067AXbenFjG0dbnGh2ZjlW58+fYq2ZjSnU6btME6K/IqdPl8ew7sJI4n58ZEiPDVdcvP1",
+	"jOrJVrQl6BQaTtcO5T/kbLR1uPWb3XIVdvFXtfvdd6fPt8x4TlM2nUnNRLL4E1ssD+SYJBlnQu8kE6mY",
+	"IJdsQTqUmPcJV4SSsZQpSSaSJ2yb6AnVZEovmfnFLBhnaV+YITKliaIjdkQUY0RPGJEzllPTyyNFgj67",
+	"feFmi/tVzjcY644ZbGXd6fUrJsZ6snW4t/80MvvgP5tV15rlps1/+fF457+nO3/t7TzrDg533v+0F+3t",
+	"P/30H7b8dimdczHGxRFK58WUCd28Q9z/TnjKhOYjzvKIUEVmUmmWkjnXE8K1Inkh1KpdLDu57W6e+s5h",
+	"2OeFWHWm8kI87In6ZN5XMykUgxP+B5qe4/abT4kU2q4mnc0ynsAB2J3lcpix6e/+osxAf2rZ4xm+hZ1W",
+	"p/qaZiOZT1lK1EJoeh2ReS7FmJgtJjInlFzRrGBEFlrxFM8jNntIpu7dvvini7dvIkIJHgkyn7CcEUpE",
+	"MR2ynAxZJsVYRYQKUohLIeeCjDjLUvOKPXFE5n2RUzFm5IrLjGoGv34oWL4gnhbgvUklU0RITczSLMw9",
+	"+BRtnUgxynjyWVcPDgpTssgTQ3+UppqRkcyH3FBF+BEvdIcikSI5u+JszlJCs5zRdBER2hf4k7kCstCE",
+	"khHXEZAFfBnuBiw8nTJzf9zdBhqjNM8ywkXfTH880dt2PV7CMFImPveCaHnJBMlocqkIuzLbpxI5YyTj",
+	"cNO5IPH1jrs6O/CbirtbQEXMSaDZizyX+ecctuuYMNNzl5hpDGW6IIouFJEiW5A+cKfyof4WoSKtbLIh",
+	"Fp+irTdSv5SFSD/3uhvKlPrjWF4Sds2VhpGd0UUmafpOylc0H7PPPUBYUXadMGZvh2L5FcsfKZJIMeLj",
+	"ImcpyfiU42gvWH7FE/adoFeUZ3SYffYBp1TTIVWMJFSYlRyavabJhKVEyHlk6KObBk+Y4fJqUmhtKGAq",
+	"58KwjrokteNFqaZx2ad3A6ELhvZOytdULCx/UL/IjX6k/EHPDZnjisgrlgPTtpt2X9P9TtBCT2TO/8o+",
+	"6y16zZXiYhyVnC3y/ErmhnbLS5aSIaO5YUVmVWqT/uGHH3aOCz0xUkZCNVuWLeI/wNsxUnUqSAzkJCZU",
+	"65wPC81I5/zlCfn6mye97fUSdF0Mw6Wb5TJhSpn78kJorhefcwV/YFm2YwUKLmaFRoY9zBm9BEm3yBiR",
+	"o/DaHNkVUDFQMEXMDesLORoxkZqrBJJCSWyLjFkO951QxWwmc83S1yzl9B2sx+fm/nAlHilygr3umFGY",
+	"y2EIhhQ1CZ7QJGEzrbogfto+zBCO4XsqEnZqlg3GnqbcvEOzs9w0oLkRFEc0U6w+kvJtoic5UxOZpeoI",
+	"VhLGkLGRNiIc0aBxmCExMeaCgUYxokWmSUdNUC7LMuTSUsCDU6YnMoWjOAvG8dPWkCaXg4RmySCT84GW",
+	"GcvNCAYzlMHYdZIVil+x107Rw/NrTgfVW4dbqSwMTY+MRoIP7PV6UZNeiGKk2fKyzykXgxlVajDKaYLL",
+	"8NPatlu3/HlmMpFTqRKWUqV5wvViQLPZ5MbTeAwPfYpQGDGbvuF7RiwbyNFgxDd9c0pFSrXMG1Tfkwkz",
+	"wt7cKL5kRHlW5PgvHrUrlqc80Ud4FfSE5YpQox+kV1zJfAEqlmZTddNYoJ83RgGD8Vyf4kt75frSPKdG",
+	"3S0E/1Aw+7vZLTsBlm086+tBrh72KJijnLErlimrn+OjT8L39peNJPhiPlAfCpojo7zD+ZeFzjjLB4mU",
+	"l2qQPthkXT9KF6CLWxb/IH3lhVAb7vcVy/nIcoxlSlA99h9/+/yjUZCDV4wKKFKap6RzevL97snJ99tk",
+	"ShfE0FZCx5QLoydo1RdCTrlRJkC97pLnlgrv9yJCjSREvrsgL86OycUPO08PviavgQqTp71e73lfJDTj",
+	"Q8tRwu7ximV0KHO4qo+UJd9EMa1AVDNyKRiOHmDFP/lv5PAvLNFmQUvWdCYzniw25GwvQIH0TM3wpZHM",
+	"ExY5vqVKjrUxi1qe6t0ZziaMpcXbq9lEi5cbmESLtxpZRIv3Kgxic3peoeAN5LrVCCrEus0bFdJ7Kwrb",
+	"hpJu8FaNLrZ4s0rlWrywCY0zMi7SuSyTc5aa29dM8RTppAERW02+QJS8cZifQs3nx3Cjakej6cCuvDer",
+	"r2O0llisJwT1c1I9icv3sLJnzVu/fIzCC7Z2D983UWF3POo+C8XHAhoyugMscPPueB7Q6z4JeUC31+vt",
+	"NZyxY0GzBeq/a6l9lV6jcb29CR8EPX2jwd08Uz9Q0JV9v3HFipTrF1dOj2w/h5I51FRjowjPqSKpFCwi",
+	"rDvukjgvRDfJGdUsjSMSgyG4O+K68pnOZrm8Cr/JmRkmS+PusjcmMiOQDd46Q2id7o02WtDNqWmouZ0a",
+	"FaWa7Wg+ZU3PpkxTnjXTjxnNNU+KjOYqIlwkWQF6PXXG8BxMS1RJ0W10LoXbRs19wglGW/762d5X7uMr",
+	"Od5wF9mV84W24mTBaVliZbUZ2JabxnpCCzM8teLwoK1ZGQrLFRhE0MxwaK0KcIedkBmYVC1Z7osk55rl",
+	"nJJRLqdkVgwzriYsJeOCp+blBvGRJknOUq6B0ER9kbNxkZkfoX8rXF68PQPLApnlLGEpg6Zwc8lwAV4c",
+	"mpkrm5IZy5UUfeFdxRmjillXplvppdM15cLpesuCAkgRG26v2cJCI4utrvRL8ziZTxhaPxLTOElkkaXE",
+	"moDdu7BagsSGF7A0NpsBfcHKxHgkY/QgzCeL4GgPpcwYFdVrszRnsKk2X6hAHIajYEZkGA/YFI+IKLKs",
+	"PoMJNUdFgE9vTtE65SbSTPFNK2h0R71gvbxXP67MqPmB/cj6uvXEDBdGlLLEORS9gQCMA3OumJ1YaCFY",
+	"Xrw23KIiYuJOBasdNIZek8ap5MxbHvHW6dJqlsgpg+vUSEGVuTdGAlmxj+Drd8+YrZkyquDOgloYbuWd",
+	"N6yZ/5UjdCfOL1NU3pKq7GGXai3ZLde9KVACDoBlRQHtmoGGeEjiUtozPA/FvTjqizgQ9cwvdSnPfOcF",
+	"NUOnuBTmOy+aQSM5M79csYETXQdogo9I7CU1eIspnhY0GxhpzXxhRTIFraQ5H+m4S+wf7h6a9SJUEy7G",
+	"TOlDmKJgcx+jojI581S6L/CGUAEH6+K5t42Dp7cMmjC/UhSpHimy3yNTqTQx1FbovnACAnaiotJj/ANT",
+	"ekzzlKDEAGdYkY5irC/iP754R3av9nZ1zkSq4u0uOa3cOlKIjCkV3uKMK7AjEKr6wp+JyF4L87I3NcOp",
+	"HRn2buQMQfZ6pDbOvgDXZOT6wQZ8q6QD9BW/zRka+kmNdm1bY4Yw0mijmlBVEBpUg1C4t2fGSOiBNL/i",
+	"wISSPTwVHJdSgDd/whEJ7omlENHW9Y4Z+c4VzcH3YaYAN+c1F6/cNPALNxf49Ioml29HL2E68MW3y3OC",
+	"7/9Ak8uTyrzg6/MLPzf8bCd4Yef3wk4PfjwN5mifxome4zzhu7flZOHzc5wxxmWYU4rWqiZq4CxhSfig",
+	"ERSRPPhTb0T1G5STvV7wvxuMgydGQAJZpYE4z+WO4qk5qf4p1I7MBYVNv6KZikiv+4RoSXrdZ8+e3ag4",
+	"PXv2rKI6PWkelc5l9sqQYrWhrexiwuYTmoPsZxpBt6windOLt+Sbp9/0dva3HUvxsSZDqljGBes2cJAm",
+	"xWYw4eNJS0ODfSOT85YvwP6zlg/PaS64GG8yIPdK2xHVeKYdXrWd2kAqs44qi9bIJ3GrzouskVOW9NsI",
+	"Hx3/kWlCs25ETjIuuuRkwqZdsv8N6ew9e7q3TQ6ePd4+JPHezr6K+yD1YRDXkC2kSMnP/7ZvWE3Hjnv7",
+	"yDz6WMXgKvTPPCYXz49IvG8aIXou+yKRQrGkMITCPeZ5FbQI5+2IxOc7B/gOCV6JTPN9QYfyipHfwfPO",
+	"pwtiH0SJzcnf/5f/dR97PtjZUzEZySInyz0j54Su98Ku93rXMdFMVF6xnkx4GqLYLJc1jLfKP8ySbUVb",
+	"Zjm2oq19/GSmsxVtmfGY33rXLSm52dQ9bMH89dj9te+/Oz9wfx3s+edM++ZkFLlqUuPfzuiHgpFLtlBM",
+	"G06qZE465hp/fVDk5dWeGcohxmBtC2I+n+ztt4r5HOy8/91/aJJpIRJ3U/80QZsGMv4u+cEpJzmjZpCq",
+	"qmHZh6k55JmRtRLJRiOecCPaG0GsyodVjCpXIq9ozo0kGYN/kU1nehGZfvoCb7RCk4dgpnXTDTxnyF5E",
+	"YquFgCQXj4zyFtl2wb0JqlxfGFUOjkydOCKZGFDdqEPY6RYCtC/3dJVlrLOv0NKetvRbEpgN1upC7jnz",
+	"DsxpM0t9k5U+3JnliZ8KMpUpy3bYhwKtxTJPWX5IDMehOflx2IvIcO99ZL8YyJyPuSA/wncfCpoaaSBx",
+	"z0VkuP++4i1u5xSwtoPHTcNfLQScNLB+s4lDFMZT89mpgV4kaGXbNv26o9rUr/uNTKnO+bXrOFzriKif",
+	"/2vnn//f/+N//OGft//+P/1fP/+fEcnlXBmxKXgO17uyZPe2dusXFo2a66+DjXulyt94kRKl5UY3Ix0t",
+	"9+AkVJKycc6YMis4yhlL5TQiwvAYMgsU9sDhg2ExgyuWq0ZxFdINAu8rPo9kxat/Zm4Qw4tGXnh+d6/b",
+	"6/aaDbbWFYv9rbuGL/yDn6ItnraLNI/CwPlGS5N3gFXn+pwrzUWi8fgrJ5GPUAxfl79hbQk3khUr5prD",
+	"BPpls/EPfhrk7Iqv3hOrn7qHmo+XYY2Voe81RlUYinXTyF/DQ5+iLdF0+ixTKxeMdGCPjUYhBXMqbCFA",
+	"g71xMWeSN5JXdI77kAPLTCM3XZkT12tExrksZiwlw4WlZlwgG1K8JMztI3HM0p6ZYTUxhYrHtB4gyMcT",
+	"kARCImUIqWa50QNhMJ0CVUHrb6wwh+1bmisht+CmeZ3DQ58CZV6la8iLX/qUXXHrDu0sdq+3Iydz/rf/",
+	"PCe/J4LMYd5EJTRjt50AGNRvnAE+ZZ83d2EggULSLHs72jr8sQ3JeF8X4M5ypmCnBKGCeHrl71sUXDiO",
+	"bq6c2WOI1lF0VA/aE62ajNeQfeYWHx9YwSXB6bV0tu/K+5Smumh3Sy7w0cBXWZ3GdyffvSaJLLWS0uJR",
+	"sYh4+8cSgXTiwqAV5frePu0pmJV7b3zPPmbUaDjMg4SKlBve3OSw4npCYlpoGUc2C8Q//kgRlcicHaGE",
+	"Xlr9W5MfpCInrsEmGuTGKMUVE82mp2/l3N5LjEeEy5lari3MCcm4MuxcElVMzT/CpTjGAX1o5unYsPnQ",
+	"+u794F9ZvoDvXN4VI4UZUwf0ZsGIzTYEayuut719EJcM7CUczcD/cO/jCszEVF0i6YbO/8pyOZhQkWZ2",
+	"OZa3wTxSPe4KI+5tghyZs9zovDNtfZe5TIuEizHhYsQF18ztpDtU1mkiGKG5xKO13rOMGX1Iorw8six9",
+	"RNU0RKeX2dvtpIdw/5tXv+kWNZ3a+vLVVK5lOllRLqqMDITlqmnbdOAN5oE25IUOryp6mc6x0pJyeHoY",
+	"VfTgihYQqKlLUnajYQwSfsVLab1ym0RgrHCbTiX6UuBw0qEsdHstY0gVb/TLL6xPE1mfCgIUuSBzmaeq",
+	"kTzcSmd3lpebeU4xndJ8gbrFjOdMrVbEuJHv6RVTOG4jIJY3+ZEi1oBN6JjVjMdSsJULuEKaCZQOqvQg",
+	"jGJqT4++D99qJkkZBd9qJVCNGm3YE3Cq46p7tckEvmQAhh1wpyHCaJRghZumFez1ynP+iqtNw4xufYA2",
+	"MPrUjlKdxQp2rQfJCjMlmi+dTGMeJbPyCFnp2KwWfN29+cg0bYXZg3AUbdYatZbN7JdvBVtSs8qU9ZTT",
+	"sZBK80QdERp8hPgcf8S4ruVkko6QaCeQORGS5FJq0HeGNLncCdyR9gF0k/XgEeeSROF3XXZOAbnUjeat",
+	"QLg0k4J+kb96af6WukpSd/q1solBoCNX2tnFbtGxU3ibgzxQI7ll08AmVxpQcjq+7Zi9exn2sjkOd6/X",
+	"+/lvndqmgiGrstTbu5WPt9Y0UWa49XxQamu570HY6yDsuTlFO1sQ94LCdGd44ZYzRXlrlZmirsSDgnBE",
+	"enif3VG7j2gcPFv1exMspR+qP8TBNq1Yw+BgLt2uaIlANJ7D4EKtJKgXXheuW0kgABBAEbrkuIyCAQfL",
+	"DLM7B2jViI98OCjE0RlK1w38ctWnDee1oSQwbAyGbRtfUY75DFs9d40GPx2X7Qffnvuu/OQte9w0Rrji",
+	"LboHF1DF3N6uvRHlGUsHpSdoOVy4NKpghh+ib3B01M2oUqRThuvI3EcObXfXhnPWBYl7s2RvZkW+TzPw",
+	"DUkiN9PMTW1jtzc/LduPbmkAstp8S9PB51O3Q/22QUWtnvs1KmsTxXvOs6LZmuR+ISMITwdsGm4UTcjm",
+	"48Iqu6TjQ9l+b8khBmf83/8bSW0T20dkD3kMHSomQE29XbpeizioF6HzaQOZ+CaTcLfBR27zEu6UabDe",
+	"GeKEcwwusM4gy8NUhSptQK5XS345Q3wB1pQ+toLHl+80HbAlXwoVYzbA9AhIkblJsS4fbfip4hFoBXsW",
+	"ziB8PzAQ2R5rYw3SNJqvkj947TSyFVvSPlWoslfL+p07OZbjQQcR2dsZUoV4CEvesiNr2G56s359K5dy",
+	"vQey8disXcAAN2yDJSwvUitrQG27Kh6SJ3ZOq5M06se4naXnHbvWDRYetLoxgnBhmF+dc3FJqCZDqSeE",
+	"iVQdEbeKZS5EJudMYTT1hI8n5m/r26Y5s696qb5yl+5nvM4xDNFJZUe1Ha9frKa9/5bRTE823PFSbHBy",
+	"tbzEbtJFS+kZ+337py03hHN8uT4H21XT0INb2RQNbLPUqAji3yPnFIusXTJyITk5UXQ6Q59qEOX29UGr",
+	"ILf3dYzDXvT140+NYW8lwuFZzoxIcet7F8jx7YnXDTZthN6w2pW1QBtFqlAsPSJCzuv0qB2vrYZHrZU1",
+	"yyeNfAp70p62lEt6AW/W8T1uIC/1HEEvJLpxNB5DG7K1odgTRIW5oK/S8xyaXjDIMR7KQqRhelhE4kzO",
+	"bciioUKxD0JssOLh283WrNWBz+1tWW3wAFYFS29o4oB4aBsj7WQhN7+mDXpFNcPj0A4S6TYBmXhAwGPq",
+	"Uq8wCdLcCMiv4VeOgWx6eW51z9NAv1j3ltdDWqnPdUEogB1dH0viHmzU3sp7VrbYuJG3SWZ4zjRL0G8j",
+	"UvKhoDAB68pBT2SEwY71GAkFGIMzTeIk55onNBuAhhWTDvUe5e11uXU1T4trJVmfyXJ68Zbs7T09eLyz",
+	"T9w7Dj3VeUF0PcvlepDc1sRemdxthuPWIiKLW49iVd73t3Ju+lig494tLjgy5pOFWfHuijRyZtMnmtNf",
+	"w1lZIZrgS2aYOD+zqrdNas1kg6vk9ORb8ud94geH5y8ij7uPf/7b//M/717curMPKztrOvER2evdocMl",
+	"gmwusRnD0mGKVh365R1amwX62tvjNqLcLiH0xqz7OrZQSXU3SN23VOzTTdHhbVxYN0c9Qy6jtUsYtmNf",
+	"2UAms30MF60hHuwr1d5X3L+guSULSy2wxgx/zK9Yc1NTej0AgXRAx2wwkUVTDN8bT4PRn0tSaf2jM57f",
+	"1vm4YQCvTVJeNjRZnwOObMDFYOSCUZZlsfZ25Xuwndrc7cBIGq5qs1G0EtvjL0kU3rbVU27ezXp8T3kw",
+	"V9OCW0Q6oMbX/kJbonMTDodrdvVYb6ne3YJ8oYB7R+pVUZhuMMdUKVs740ao4r1fFtcwEabXffak20BJ",
+	"braatKQYRrDIpBhbu3polHMY60rTRRmIZdRfZJ/3YFJ/+s3TgxvhHG9FftqL72voUjMKBwVXHRdjuz4I",
+	"+zOnUG4Bfa5TuiBDFgZxOyOCB/WCw77djMRxfzStiXT5S9F4Vd1q12CWMWcgJgvyezLskd+R4d7Pf7s+",
+	"InElmcD+bn/yCWdxX1TfM//u//y365//K2ZTPz34+uud/Rr4ALYMgZJBF1vRlm+3pZEN5vTKtRZ8euta",
+	"hO/+XDb7Kdp6CxjDTaFYP0wkySkqvKVN7QhMbP5kuYokC0IzJQmgy8T/Ma7Z1dpWDKka1v4jWNb29r9p",
+	"Nq3d1aD2j2mlWmebClekjKW5nY3xfkJP14EloOmrmitZqFWBMctCM5D89s5vfP5WLnB8dXN/N6Ju3eak",
+	"nMObTcrFCnd8U5jjoGZusb7vykLUJ1eT+NwMboiQXBr4xjdxnYWkGnKIDNwQpbTqOl9CsAKOhAhWZZCk",
+	"VWbwetzWehFY21qc1FFGxw0iSQzIBQPwRsURiQHioPzIrnVOZ1jSBgCK4OlMIhiR+/TB/CTYGCKw4G85",
+	"MHM1/N03VQhrMB0423Pc7YsLyJh1tky70yUpT2ieL6A9WEiwPPdFLKQeOCODWaQYYIFIjLQNtz/evgmZ",
+	"rTmUZ+kxHhjb10o67rngnUEZ1dNoYyrt8EYhlUNNufBpPPGIsyxjeXOSzpRRMdgwXNE58ZqUWah2JEfE",
+	"u5qDDBaKoXjpzQmoNZShZSfZbJbLaz417atKElyjJ8IBSrvDHkTxmwvFlIam7sOkxNOGGMZm0KQrCFDE",
+	"GxUsan1Pgju6fCLWUzDLpDejYP9I9vf1VndXuGI5LvPlCXl28OQbYgtiEDTgqWXL9yrjLkKZgt8RioVZ",
+	"uDHu084ioNAzJq1ndjnjfUVO50sJoVI047Z+SGSLWDRUA7Ggii0ZMkz1pXm5kWyJMup8ZZEPMqOYP94Q",
+	"WAMPWCFmXZWQ+J93rJC7c2q4gZbkQyG1RZzE0DAER33S663EFGwKtzX9fPvu3RnBByCltBJ58qQCP3XQ",
+	"a0w111w3IRFdTGSuicJgV0dl3PkxrTQOVduCLHUf/3fnp07zWLhgrbAxR7uLXBwCz7pkbMbyQ/vMoT0h",
+	"sSWlgTKyXpiCX90cg4jANRbsysE5/KnlBXnn4CK5q33TXRnK1hQGYd6vHflDQsk/Xbx9Q87wJcP1JOKR",
+	"yHQRkXjXaJ1qt1/0eo8TAf8w+ymRWTG1X8V9Ye7mycX34IyJ8Qlufz20r9Mps4/DTaZlBT4UCNavs5vX",
+	"2pU9d/n4GzgFf5D5pVkREIiiMlXFxvXYBXGhPWiJM5KR5UA1wTK3dXow86u6s3fxrd+7v7xx+RA51+g2",
+	"TVWmZrlE4zDNYjKf8Cw07lRsP0ckRhReFAIlRDZowlWAK2nIrZDVdDoMo3X5dKUz/YjEhh9MWJbGfVET",
+	"4oFFYAx9ZFuISCFGXKP/TuZEFTOWK5ZabyHti1bddt00XJSZh97lyaRqpwnWBrMe7OS3oi038rYIX9jj",
+	"WaVB++V52K797gffPOxgKXcuhyMG4J8uvrBjrXROS7By3TCj4pIkMs/RMbe9CUhiNRpxZ/m3peN9Hkov",
+	"9YyPUuxFeS66G8yIX6LNLC0wyCK7HXz7GsvJJmHKCS2atjZAfAcgMzQCdWlaQXeHlBj/OTz/MRBt/N7H",
+	"XDcrNy1y8G4OMtjQNnPJse6lu2rWJ2SZLRskE0O5218vv4snvqHgSyB+J65Jw1DN0slCgVFkA9dGhZiu",
+	"ADmA2q5IdiwfGcFWWPT+huThG2KxkVj5kbYfn7Pm2H3x28qF/vqgEdVqw+wSOJSDFaq8Yg1BC2fS3m8H",
+	"ecRYekS4MKsD8A1GQ8BoacC/r5Co1eNuZyMzI7K52HD+3OWrL/LS+QhD1/2KhvMPMlTWGuIqN62ZW5vm",
+	"XzKWfoY07w1rF4S0skE1mlA1mMp8hd97bQ74GVWKUEVixQGUcWQLpobZ4OZQ+ODH9fts51VP+fYDvMG2",
+	"ee7xkzaQON9NXM1mAKxHrKOZT31JWF24wfLOa5JfVkdsBOUwfG3ROxblSHgbWDlcmefu6QrhWhWvsRwB",
+	"sln+vh9bcAlvSBipDTNgM1ZQ9cmgrfmLafDYv4yfz20Tn8ovbuOVuo/Fv2vWQZADoaWDX/d+cgwatw6D",
+	"EvW0u3qvGnelyNj3ULG9TQ5ZjbpZorrCnGFjgri4ktmV0QcMd+GNgF5t+NpSTgpu9IoSII5Y7e3sK2Kh",
+	"kiNijrb/KQTVb3aM5xbX+QanpIeArhSiWH+BoGk/iaAqQ7mozdslNgbvzQthyHiJzHkP2cy38kK2ARV1",
+	"GLub4ojeIq5uJrGifXMs64ZoK+eFQGjlhpPqZrDC9aoNMzLvVBbAjU6EifR/QUqbqKvWINbiJfT+Txdv",
+	"3wBEtf18cvE90MjbJm+3t5eX/p9N39kg3VuuDJ+4A8/bPMbgvAiCCxpQB7HUXuvmHEbijdFwm2VhVzKm",
+	"/cr5c7o6MDCcQ7k4UYnms16CK4TTAz8nWNKycQb554zlLi+tvUVjzS1ve5ManW6tF7AVfPs9ZKw9MJrB",
+	"pkEc6xNYlmACVqzebUNCb8EgPye1DInfurd8jNldKJsPdq1b9NaSu+VLaDTuRXgJwUzta1huRB8bxvRk",
+	"s3AuTzvXUMpyQiuPl48zemDqtmlEUxgV0ihLb2BhWhJkrYmlZYxSySLvz7KbroT12FvF+tvUX05XmP4C",
+	"C/omkMQ3c/CmlLxgdmuX81ZZll9yHHEVK/djU/3KRm65aCyW+iqepaqOAILz+1bD1gaK3lC5qzGqqOrv",
+	"G9MrBp5DyDvEADOI+Ym3b532uDnSVVW1a1bULPW6E0q6t1ksB2GRhPpCkWvpzbvleMg7QQm1JFUrQhuh",
+	"fK+PqCLwlFGE47O3F1g8EAXP3Z94+mm3fFJh7RwIM3Rhh53yWDRU+9kGx9ZSUGJfwGu2zEbORoB+HYJp",
+	"HNmqjWVcWFl09Zbhi00mYHOxHynC04hQZTHRAH5kxFgKqBWK8LZ+jXsKh7z3eMb1KnLVv/4gXq374Iv3",
+	"7O5aCsa8BdGqOD9vMF/holh/o8wJRmqYFUe4XNtKe8PWPZQdiDCMgsSVn5YrcVlUCx+cDMgWXLQEX9/Y",
+	"71aVrkOJp1086SaRqvXrF8auVp2MtWvSsPubJU6GosU/omqw7n415sRspA1g7+p2ivmmOmwdkuTBEoAu",
+	"Eomhk85umxdCHc5zroNkjkNzyr3t57DERk2nXLQ070JH54VQP9i28Qvs4Bzbh6/A/KI8VCp8d4wdmfE6",
+	"O+M9pindAkJ6HVDfQ+hcJUW6CcB3xTZXzA+fQfVaWtQbHFPBw+HyflY97K6LDO7RZSdfzhjR7FoHoeqQ",
+	"KuyK5yYTmtNEs9zjyWg6xEKFKPMZVpfQPOd0bNi2LnJRy5bcdxRhRbrkv/T7173ejvnvU/OfP5j/nJj/",
+	"vDBf7r3s96+/ebmiDuc7ecluaw6/hQ7VXp5aCaigDM3YgK8ADWxgKOCBa5bTFUtyprvkYiLngkCIrzkr",
+	"R0Z3TqiwGgeA3YOK3VIywR4jXzQfJ3IjWCxs0e04k1vEdvpoeOca4gAkwu5QTeY8g9zM0pN5RBSslVVq",
+	"UOF0tbeLlGuic8qz7l02sOSRB+sYJMh1Hwpmf24qwFHdgMY1z5m4Tzbk6mPfCGJg+v2De/iWDu6bCjW2",
+	"KqpYLSFuLqRsLtFlDoSW5JKxmdnxKRdpgJ/LFdFmTqRDSRAx7QuGRy48o6wlDtaHDbG/fWJBqwU+809X",
+	"kIBbHUdsYFXNQp0XImmulPEuL1hp2Jpzkco5mbAsJVOMQaeC7EW9Xs+tCBSHFRmCfsosZUrbBwANy6xx",
+	"c7jIlYuj2cStEobf3GgkbgbTLjchgPX1Jz+o/BQMMFwyd8ZukNWrd+QOoUJ3CvsxCuEt9XjRBPMcbTXV",
+	"iEQ1oalCZAcL0O5tr0hHqZTkv42xgWWYCLA6Y9b14K8wgLRBJbmbOSKsH0way4eVOxP2vXL/z8ILb8FF",
+	"TGeZhOSsVRZVf0QJtXRpJLNMzlUY3eIaAWXdyGxLBdBCbPhMtg1Erw78wvZS/fY06LP6iysXepEu/3Th",
+	"R1P94ZXEiPaAaH0Gn/Om4f7MUPxmounAZ7RNhbOHzL+BtVW4cq6BkQ+6cwlCITWdcgSwgYfVChQaLgYh",
+	"t15+4HaBBs3wimAZd7v1yE5jHXKBYIaT2vQlqPokJPEH9bbukM2xLKo8pjlvUbnYUP+sC8IM9qx9seBq",
+	"gONaBhWa+yrWPQdM6JM2y5CN8hRWz0Blrk30CI5xeDmKAnoOdbTezjO6Mzreefn+p6efdsKPB5t83Ntv",
+	"xr75rtE4e0zAPFsIo7bI1CfETse7rwAHwv7742w2fV/H6Hm8v07n/O92/of3P+1Fj1eMp1oddsPsTKj5",
+	"urer/mU/xoLAgOZUhxslF88jojrX2+T3JOmR35Fk7+e/XTfgrvbaoi7utXzQZSet528uh6S3BU03HZzv",
+	"y1tXS++CCGoLNCYWpKyOA+VG3PW38cMrnWGV0kdUuaolLbmVHd0Zvmg/vYT3cezVmoubFtZsDR2+eQW4",
+	"h/XttuFoZUZ3Q4zIaMRyJhLWXKLtt8/J7wnWaRvJQmB1Nlu1b3vX/nFLMg8Ntq7h1xZAh90VP2fzxMC2",
+	"dT3/ZJ5fX3TP6CTNO2HY2MffPv9IqJEQsei9X4dHylUpDpFQW5xOcxFXQbHnLJFXLF+48dyhat6dvZ9l",
+	"AsGSRGYzpmHpHinioP0SOWXKBie0socFXNpSy5tNs+4Q1xZr6V6FO+sX3V/MIM9hY0daeL4+Xxyxddb4",
+	"1NdGpWxqmIVDbrJP1lzBQwZZjYabYpxBAwhloJPWS+u2L6hb2/BaMdv6dG5Q+Zfu9DLL5IJrTrOYdE5P",
+	"vscwkEQKzUXBxTgmnRPzbUIzPrR0LhxRyCltQ3gK7fvtWaZv8tQ3UzkwQZO1eX2m6r3htNtbQap7e4P0",
+	"Xe1ig629ZVz02tIMznISFmfYqHTJuuC1N7aabg0pC0FPSC/yJnAfFWGE8bsVYmtVju3OjPKz+ubakH3L",
+	"IVb4SBAR9sQVwd/0HoHNakVqstSsuWI7Jb7oPkZUXvLZjKVHhAHCudQTls+5agY1UsV0QIdqkDc0/t/+",
+	"88ffnr/46DSeSh3nAIdGLQloTcO5U0nbO2HxhuC7wXQjt9x2bVdvp+29ujivGFV6B81vimAfqusURlIA",
+	"SB65sgqo1R1RH7LIPn1RAutdPFdHJKaFljFJJlLC21Np0aRgC5WT+9SUZhlTAGBF5Kgv6FDJrACckrCM",
+	"trpx48AYhVGXqi8Q0KDcPC5IjPMa+C9VXAWfERIsE3u71/jff9mHfxf4X/tJwb9mci35l1/2N9i8/3wq",
+	"rv65/nm/9sV/qn+uP3BR+eIYhvUJLM1JkXO9uDAnyhYsYjRn+XGBtclqnN58LXP+V6ASh+QP8CzS3ASc",
+	"kRZzqkvAdagOSVzGvcQRicPAF0DPrIS+APZmOuUiPiKKMYscBykrXIpHisTXO+6Y76AL0W4OXAkgHzCk",
+	"8tpPtJ5tffoExsWRXJ5SgE6GcdmqAtxTCDhSGR3K3JoBAjnGn6rIHHPVF7Ty81KSWeTK8HLtA8TBygLq",
+	"zCNFSuj5vphBRQyIwiWKgSEVgDm4jiCkEJuKyCyTWEnniuUqDPZVcFMKcSnkXKiI/PnYASGYJqmoeIf7",
+	"oi+++sqV4DSb5GJwqUY0qe5XX5ES8J5w5YvChHPpC0CtHRteD1VrWM6piz6kOXMqiyJpTucCEcBmxTDj",
+	"asJSMi54SsHfD22V646LY+amLafHsMqxueAyhymZb6xmePH2jGh6aZYxZwkDEN0jL58LxlK3FkPDTT4U",
+	"NMO4/RnLlRQOncoK8F3ygiaTvrDgWyINQ6q9VSxnM0a1QgOroSRO+IphdX/zG3IixZXh31KovthBNDiE",
+	"Q8TwY7M+StBLNkig13fcfXv+8oQ8fvz4GenEyFEOiRee4u2oL4jp8bt3J0QKIgs9K3SXlMICHGJMOzDD",
+	"cxUMjW5PkCqprhkRAqDijyMjjTNy+uLFi51vnhwQZGCqi8O2sRgITfuGvoFAVwHvLI7McKwz2VaclkzZ",
+	"siBcadKh1pqGxU1C81lZaIiaVip0HCqueF91LqXeBtADw1HjyCKRUKLMrAXLYEZWriXI4JQNQCf2VuDq",
+	"K9KJm0SWQ4TMBwxdQpwM5Zsyi5RkUpkLYNhhlkVEIYCdRl5l1i+hOpmAE2SBvZm2gKeZO52b0aa2Ljcc",
+	"nFQmSHv8miHBGrIjkmTcCABETcySmYaU5llG+FhI2DGYDFRtsmVYzCwjAugtxHDCnNjUA0Vomto3cOtd",
+	"tfCS/ClftVG5so0q8vU2hQMshpWAE1iet0OyZ1j+1wfk+OLk9JRkTGuWq4ikfGyuKUQZdw29H5j/HJr/",
+	"7MQRTokigiZADlH7qjlf8C7poPhD4vJ4x9td8p3gEAwNQV3orzCtBUFgNPf5B+5CGn5mGrHQdDAnYCt9",
+	"gaQw3r3ai0kujahhqIYiG/DAYws1ADFmZnEF6wuZY9AB9nNoBvIRP5CPYNX7SMY5Nbv8sS8+7uzs+P+b",
+	"B0N2Sj6Ge0U+Al4AsizIo4TttlsUoW0RfjR3KsKHK8B8pYxk9Phd0NptpyHXJh/Jq9PXF+D5GufWufQR",
+	"20du7nlSwIuiGrp15KyXUJmCmQvfULsCu6/KCOSj4WRK09GosVvkbiVrU0ceN8X7Jo9c8dZQos9ZIvO0",
+	"sibKjgCFEvKRwB9caWBKZtogQQJJNd0XjgHhKGD7oY2+eFGRZUjGlUaGjgfB1vRIpxzZLaoV7FozYa5r",
+	"XzSIPoeE2hM2kRkE/Xz1lSEzUrCvvrKS8NRQSGhWs7TrZtIXXMEQWErYtZHIuc6gMlQORNTIJ5CypDxJ",
+	"M087pp8xbbiT4dBvZ0wcn50SJ0k6vBogYXJEqL1C5cwNxS6FzEPy4/u4LzquncfdHhp9lb0UuFAQjGNu",
+	"x1vz0j6srnnl9LlhqoIlmqAIqAyxPnbu5ohMaWYYJqJUIs2HU3AlL5ndIDOig97eEbIs7r61nMYIdXal",
+	"cEDw9OMuiXcnUD/3r4Z27UIJXvxzynTOE2VTKXbljAk6490FnWZxX4DsIaTtpBO7hYOF2HaE6QVoM44K",
+	"ITS42UhBlsCfOzFsFR7YXfvt7/6iIL0DaWVfxBYG11DKBojmGLWn2MohTYjNh4ZJWATboUwtMzPikxnR",
+	"1896e2vRbVl3DFw03vU3bnd/t5qNQjpxf6u/BZVWIVBrIjN8f/sIez+5+J4kLMtMt63xciMSi9giAWEt",
+	"8NlkoaCaIoTQdEDUJGTCaMpgmeHrvW3ntLUdfbPrRL3YDqcMaTHjuQmI1zX3oWD54hBs5GZsM6onhzxF",
+	"5hfjIA5PUzadSc1Estj5E1tA7p25fD4CdsqVkW+FRfcNlx4aQoGbK2cRyZGvWiC/eNcetdfuehC1EJpe",
+	"RxYQ3GhPlscjtw0CCQwfPej1jvDwIOHiqi+MBLRjWxsWDjfZSGpF5pOUjNTDE0Y6Rv+wWf+lCuSFnr4w",
+	"d87IH/7aurrRlOQMcgh5uUbkki1AFjzY3zd890mvh+qLoRt90cd4IkEzvEr9LSTPE2Z4m0P+jo+sKccI",
+	"iGMzEHuCraSWSXOE30ig9qYzK1Cjr9hjjHNVkTK8SoXCo5MFqjDiRiIOl08KBmKs93uB4AdU+xJiTUDp",
+	"zXjCbJogRhtvGdk150zTfBFggYdKLsZdKJsa3+11exY+wtCorcOtx91e9zFGUEzAHuConPl7zJpCHYSa",
+	"G/Fqv9cLcIpnuUyYUkC0Mn7FuuQNiE+O8nU97gyX4jTdOtz6I9Pf2q5qls39Xs/WJtEODjageH+xqYx4",
+	"UG+ymdmy62ARqM0DhmlW4wn219SMHxdmdgqaAaXeCo0pW4c/vgez29Rsw+HWK37FBANXvoYc3R/LmSu0",
+	"wziesXKRz3Jpzj8rFKY8sOuZA+xEfbC+vkf4CCBBA/M04q3hPnou80s0sVksEEV0XiiNZ2ppT17bkd24",
+	"J2Zcu7OM8tpu1L2RSwtve3iIpQ+WbernsXITQk69cifeTRhxworX1QIqMaeKDAtupNpcTlsde9vcZsfe",
+	"DXKDhQ6HbuQsN/yI/Kfj168eYv3fhRrtuqVH8akljbE295Rqavg5ofZXZwOyLMvwyyLPYYJPeo/7onQL",
+	"1Hel+eif46B+EWoEfRsGBMfq1ntj3np881sXyJW/E/SKcvROrNvWc8gxuIGkeWiBlbv61VdgJT786qu6",
+	"YXhJ55O5U12AqWIuIxEMqgaMeG5kBcCUxFiROAg9jMGAYkVZy/YFGS76IuZp+GOXvOQZWAoSOR0aERBk",
+	"peM3z49IbC4zCKZcWO8hivdaxn3hPYoRGUo9MbS2MoIu+RNbKAaQuVxYw8GMKmVZJWIa98WMjtkjReIA",
+	"HjcG+F33t63TApD5jIxwuEe1F4wsBt4pifcEks5N00YywofMROSMfijYEcgaVSNdyjBkUeZ9Ab+AA5em",
+	"dkHgGrnOI9SHek1X6BVX+sTBmnlZWUEylOESWyAJu6ysw2puQ7sLFPpDP0XNzZZZEvfXps8hv78mfVxs",
+	"uyYrQc6r2gxQ0Vo1GoCtLdWOpnnGzW2rnOyovA8QTdwwBnNzKgNo4/5f7v8V1Q29+5u3qnct76HvMzpm",
+	"RPG/ruzFVVIvO/J5EU96QRzBfiV6oAGjY7lvw7Sr99sX70GygVd7xcA8xnbrQ6WApb9/QKYHJxdCbhr4",
+	"3lvBYEJmlsgDgPcdtOF9f6C+4jO8snfzK98Jas25LMWXWnDLlzIf8jRlEKRwsP/s5jfeSfmaioUdnfqF",
+	"uLnn3ycYTsqNArsIeLjl1++jrSVjI0AYtEItqDJ/wBV6AAkAKzqA/j3iuktOkUt5l6QUCYtKfmnhh8yt",
+	"SAkXfRHjNwOrDCPaEaRvgQE0Z66lFbIhonAusbWmjSkfwaNvkace9n6tkv+x8Miv/Er1Dm5+443ULyEc",
+	"9R/0Dh47YDhzRI3WAo59Gx8A/huXsvnQt3MXnCWt7uj6O+lMXYmRxFOsE0LoUBY6LF1llbS8EJFLrQUB",
+	"3joUAs8NGI9mMybSHSmyxbqbeAxT+FVeRxjaK7lSI8eiGF+u5K/gSgZHD1xXiSXy7gbay7TqBm5w5Xzl",
+	"JzhuM6nudPEwFl4RajRiHHVEcmZD7zwTrGVNWEGyL7DMPc18cAWUeAFWWZYBy7hAjxmURFwYfo3NDOQo",
+	"PjKKIiO+Ic9HXSQ8eBI0XUBgjBU8uuTctl4bhvXN4hv+k9FeIbXdBcvYQuUdZskOtNUXEF4PUehGs419",
+	"wGFMOtb/01zTbNsSIL881mESz9A8MLCLf2TLIFl/tsuNK8Qj5TwafTFmGjwf6N928VFcR97x4Gb7SPmw",
+	"JJojOwBkAqr6oqyk1yVvHRyBtWlZcorndEK5IAkViI1yxRVLSeeg9yzqC3C+xDbfQw3s29b9cw6pop2D",
+	"/X1bpnWYwz9OTiodg55NmfaOfBRXXyCk5enJt+T1Xo909nv7+9uRtTsEwVsXb89clooh9tvgTozBszOw",
+	"Wxcf4hhwWyFSCDkhfFsGjnKIpMA0ClWiSEKD9rCogQLDr9k2webxIaGaZIwqDa86jAyMSLKHjWZghMR2",
+	"pvR64H4ZjHIKQQzYzFQqTfafkN96l5aLc3dD6QtSNmuOWmZOaXUSbgiJLISGGkvg87FNbdtRcDHAcJvB",
+	"JZvpcBqVsMHgwdjG55gxdFx6kOLXkduibYQLoW4E2NNQ6glWKR8wkaqBYCx1ZRgP7WTMcCt3zSwA2Lus",
+	"A9UW8XQn3FXxxP0UNM/lHC1e0JGZC7xtOjwCE5RpxEbZ4FjsCCKI6jKMW9tkGhdeMJ8sEJZ0zATLKYT8",
+	"xK58pDdowSJvN8kPSDlfOGp8RwkC2NgfZLq4N+HBj8yz/Gqoty9TVxFe9j6PLhGm36HfGvp/JZMVORtn",
+	"VE/CWllYjCuuMUdIh65OMVrn5vh3Jjj1WghOJ1KMMgsHcLDXYkxndJFJmr6T8hXNxwzfe9JmAVQxQ4ji",
+	"1yzl9N0CAaEO9vfbvGy9wEbWeiE014t/VNHwRT1czOYRgNJGneQVlFtxIuOH5D7ExVkmdXeGORkPYUih",
+	"UwbBc+BsgM7U1Ti2Mzt780fCp3TM1ilgZ5nUZ2/++JAqGIxh165Cg0l3yAVFc1YbRyjM8ovS9YvfLHNw",
+	"Am0rIniKHtzo4U75A1ypizKQ1ouBTjYkU5pfstSKyFZDszOHrA4pRhzSFfpiSEWKCgNoEgBBRGZUsIwM",
+	"WSbnoLDg1fRxRRTjQyDypy8EnYKQie37LJQgw8W0br1EN13vi+8/w/VWV+PfXd8qsuHLhf6VXmg8Nw9/",
+	"octg83Y2lWpUe+0Ony6lU5k5FTOiJdnrQXihzX0I8rjshEHVMwpzX9BSO8QgXrzN5S0nDpbcqENx+X1c",
+	"am+gXTldb7tLliIQu+QsSPqCtJR6ZhYVC5e+BB79CXD2EQLDU22DvhVBJ7RZDEsUjiooI30B2pcCxQ1J",
+	"k60GQhRduEhITPzJIOWh0IqntpyGTY1jaV+gBihzJGSEorXbBihYqzim+Yy4Jp0y3832A9GefXHQe7Za",
+	"qwsW5Ven15Vj20ix6z3IAFyJ/mZvrLVhzXwyCZjPXLSrLeT6RQf7ooM9uNc6TBaAVDWX2xqwl5ALtOQx",
+	"a3hK7iuO39VE/1oCEqIlb5D1WjcsG9YS21Qly5AckmKMtXjQtYY2tLKYua0tggopFiBvwn8mWCYbbOQ3",
+	"FJC2RjhamtI6B/v7nihLwba75LjCUBD4NJNizPLlmUGM2LNDkGMh65YrMgI0rb44B+B1FboIIUFayDky",
+	"T9VE4rGOwX144e+fuFeLjn9mwr7SYnfuK9t/IdZfiPWD+1LrKZcP6k5dQla6Z40eIxsq2bI+zKFBAYAI",
+	"ZB2vion9vgbS9CsMWlhCx1qhdFcW/ov2/cvfu++bM7obwxnW2KZbquFRGzW7AgCz+p6R0yCZ3TTbFyvS",
+	"022liyHVyQQT9aQgnbCj7SOfI94XU+qCksDH6pDIzC2dGKGpUxuUdY0zaiUtr8EPaXKJolspq3SmjIJp",
+	"IPabFEdEyL7wBRwtJMF0BrBJXNsUzGru6yFxoIp9ARCkgLXoQEehid8+vxmclJxqSCwAAGgm+gJQNP/+",
+	"r/+l5jAugWa64SIPtMxYTi2SYxyhgNgXzhTx87/t98hvHXA7+e6CvDg7Jhc/7Dw9+Jq8xvCSp71e73mI",
+	"g1Pdx6Pl2AAbl2Jmn/MU1ihycWJ9UYF9ga9dLIGLGzsu0ythaR1GKuY/ODHVSLYKtvbYofhWzhdEXkgL",
+	"oOGRRquoBcRFn/cFNbqvLehpiD0phOYZJAVbpPOwcUjS9cE5R4T2hXsOAxIAZ8Z0bQRy14urF2ojSNDe",
+	"G7Yb9QWgaYCYn0tE9nE+esSetEUuKRTSYUYXEArDGewxx4KcsHAHvWfEmowd6jvaeFyOMkrwIbp7X9jr",
+	"MxBSD7y+sh15XacMYgGsHUF87JP3l5WNhBEqZRM1a5B9dkLVYMR1vN0lB/v7h2ZNK2tuMXzC3QyCfkyf",
+	"laMPaz0Izi0k81MMlVlhYvq+Cq3561JDmuAdP3P4QBNgawtJwgeJykKbi/5FZfmisjy86HSOMgJtRsUp",
+	"QXFaSlBhvccbVJkAxmf3p/LDJ6fjWJL4QN7/wIrj6lRb4IOan9DhNVCNHM95KPpCyPn2YYDe6Ap/eD6m",
+	"0dYPBBnexe5yH87YFx0hdRtmgfKUedhxG/SlYjKozVjEyHGwpEUI1k+tYJQG4Hk4qznFOEIwTNk67cp5",
+	"XIhiYQwoTmzAxQAAigDkSYDFTRXJpM7xPMKkzFIG8ahd4uFxK+1P6TW2PaBjNpjIIrf4MYEAw5VtB+pV",
+	"4QLiTkRYnQRh52BgXXLQO/BVtLE4EcBHmAfBgD+XebNlzbl8T8VLiTjdm7G1Uozfujkjc3WY1ybplMvc",
+	"ZCoxsd3h5h2BORH9U0PFhF6VMEf15vmCD57M47ZiXU5PufVftPBfnJUs74q5qtQey3tVwW9iIffrFj9W",
+	"JD57e/GOrPG+x9GyTaxchxFmlS8xl9gShXiJvZirC3iwfRH/8QV23ZJjGiUC8Mtg9V+dvr7wAFzgFkku",
+	"3fBS1ehYfyPr4wdXxkFf+KwKdJGs1hFKengXh3RIVR9IX2ga6Bfv9Bft4Yv20Ibk/7mgRiZZrKF99+qm",
+	"tjiTrXSCmsCfIZRCmAeGYqqDWBsuIANolf/ite36AQkAdrHO82Dn/wUd4P5dd1kWoP1Wz0oYauFO4Krz",
+	"u4mTIBQxwE5qzh9JbF6jP6l7XXImlUYkH0wRgzwu8zDCBYtFX5T1iNBab9S7+pl3TaPmeB380tnv7W0f",
+	"9QUDwJO8nDqkI0aBiRVvdxiU4RvhAEfQF0EKZjl0dk0TbbP5auN6BBHAGoQiQ0f6wg1UWOEEwzwwZIJr",
+	"M9oeZC7mTKH1OmMjTSBMY9QXgaE/BkD0AA2hrB+lHEB7pcqfmsg5TCHLII+tS46tAaBEK8d63zA/LoyA",
+	"i0pt52B/f43Z9LVDz3kIMQYb/4UEFzuzBpqFOmtCM2dcqe38kd9hwLFAYylQt/s0yK4eH14754rJ75bc",
+	"5RhJHHCq3Z/Msfn3lt31RRT7FQYKwuXx1CgqvW+hyIN1VjZlZlXpy57pexDCIldSVHqYmjDJPl6NzomU",
+	"tAlebUb1pLRswT8PY3E7JmrGEj7iSUDOAhrXwu4WpM6VI1qLlPX+FyHjpej5xc72y9/0t8Ltxu2vslWz",
+	"NneuNAeJAee2JKYEgChlRnTHe/CCoEBkBJgPCAdjdEZw10tNMzRjAFb8h3i7jppzJrPMY3xAvZsSFq4R",
+	"TBKqgcSkgxfysIxoAcALI/rW8SQJzeZ0oYhimnTAPWthxQGpDaoDOXVXSShporejvgCz3oSqwVTmLHbe",
+	"CKwqDzUw7FyhrryFXyCJnNpiBX3xEuJMjExUHZFiTNn1RJAhJ1FLkbBD1yxUJcGyaojDgLAb6EFhPA9j",
+	"IZTtF8yFFOcFvhuM0wAsdNuX8y/5gWKlja4v8oCPcUXmuflduK6D7mzhG4o45voQ4p1Auu+LvIBwEZdf",
+	"BHFNXZQH44jE9vsuTdP4kMRWUMRoCTQO+2iKrgtoilY7Ne2T4a/xNiB/Njrf/Av+p3AQripxCaJSopuY",
+	"oZtT7uqO+odDn58UWMCh0exwDg29gM1d5ni3QU08skypHIq5Ae7REcMSfo1gneYObQ6reK/Iknu9Xq1E",
+	"ZfTLcUzcnJesOcAjRHX8x8C7+kcUe5G1mGML5b4qkWuVsGv85nZ2x7xo7UgKShUtZUhDpT0LnEQ6QSG9",
+	"EnHKUjr0948gHEiwsqieoVBojqgBXD3yuN+BdO34aUmDDwkl+729vpgyKlRQyKdC3CG6sBA2U0YE9dGw",
+	"gMqw0C5IEkdWluiwth+ZY+ih4ZwMwXAigATyW0vYh4JmEdFSkpGh3wjhs42OKJ5l1h0VuZJYNnwxzOGp",
+	"ZkcekpzO+yKlmpZYXHqSy7kgdE4XXXIaFoAhnYPr621X/9DaIQKAqCFbSAvqY7HVwcBzGMYxTAvlyrsh",
+	"eqH5iPGsbp9KqKwjZzEyS+LT0h2iV0aHLAPkP5or4Ol90VmCTlJkLLHKTBB6i4dFz6UrU2broKmJ2TIK",
+	"1QnLqNsjd0l4WjFnBSUbbUGe35CgIktfXDAj2iwVadGSTOmlGaGGZHxFRwyxv7G0n7kaZSlUrAAEkoCy",
+	"RQSmMPxLNkOW5NGe9g8IxIRgBKi1mj0C45wYs3yWc5Q4KLn49nhn/8nXh2FdGIRa9ItvhMAZzRXCsvUF",
+	"E4n0iQykoySZT7hmRM1ogvGfU2aOvZWd7IpOqdYs3z7Cjvri5OL7SkfAx8oKOcrDQuV0jgWEhgvNsPbc",
+	"BZ0ycskWkcM195OKUMr1Dj1XfSrFs/fVVw5GrS+Iv1BffYVFWHSRi3Je+729Gn46jAKEVGfVsqUUMUA7",
+	"3N5zNsvoArrNCxYfESGJYom5FWZFS49xdTrOEq3DOR1ClZrwwaBuSnW6ngBwQUYZH0/0oa01AV1D5JIZ",
+	"sNkDG1huhU3XguZTBqGzDvg+h5lgjLXMCQDVHfSeAV4Yzvuc6XyxczzSLI+3CTeaSgmlNeKCqwmItBw8",
+	"RDsQfm07M2fZEidDUkwHTwxl8a9PZIYBWJds4a+WOTqdGOqHJOoq3u4Lw1Yrxe3Y9Uzm2jzZJT/AKE9Q",
+	"atl5t5ixQ+JfLsH4+sIWdLJlETFi3Ok6S8czRjpmROyyYyhRW6kl0HEMEylN7IqoxKQjZ1hAcvvIJv/H",
+	"dXEqtvHdQbdANofMCaKdg15v29uI4IByRb5793LnKekY+ojAa+bq7OB1nNL8EiK/oAZkuo0xTwd7T3t9",
+	"0bFTn9KF6eNDIT0eZNzfio/Iq5dmi07OX73EmldMpGq7S15xAQkEZqxwIPvC11GELNHfxA5mALcH4ugM",
+	"hXN1uIcZFZfQpgp/6OK88JBjHQHo1+qPuGFdcgLlu5R3RCJgo1ggBbI1E7HGF5QAtFGGHwMoPjk3H60I",
+	"ZD7Uiin6goqXXEBNwwVT5CPoKNBCDB/g/dgVAXQBKu5hx9fKupcrvoTXgSGVLyOrq7yKOrWteVitjObe",
+	"Es1V7//+r/876dVa8MXK/MsQIxgUN7aHafUP0A4uwoDDkghZ9lIyz9pMXebL0gvuBzKiiZZ5Wa2fdPAR",
+	"FMX2trFk4g55G4A1Gqacy3mXnDtJwJX0nIH2SQBesELhAQ2wjCsy99XuQihxousLLqKjkIzqaiPV7dh2",
+	"xlpgI7UegvXquOqbZUU26KbWQ7Bi211yLueW09pqX4Zfe+nHtIRRLWZ9IM4M70HYL3A/eynQ9ioWcAtA",
+	"RMAHK/V+C8VI3AXzUMoSPqUZQq1CATZH14AIC6BS8V73Cdt5HG9jqhMxdK1QVKTK4TRKqEvyhr4xBPVU",
+	"jHw0K8n4JQtrsSLKGFaQ9SsC+CCQ6cUFCDGW00Dxv2q1EkNkF4hLq8wkHyli7rSnrHCy8HUR1oBMC7uk",
+	"qVtCJDXUFY8s1xB/tyWJzTpaObxk76gYGNnHF+GlIqBp1gdhiB0iZUKePDx00Hv2NcpCQek4i8k6s8UU",
+	"W9c6xOPR/DwksuCZgTVGgHGzxiAl4jp2/v6v/wUBbryYjaXRLWFFsiVzqNRrA67MK096PSty4+cQIwf7",
+	"vbCFBI3aYa1QzOqARgAAXgeVyhBOT4odpAnoCjzyIKN0AfLMUGJINCg+6C0J6gs+UtAoVrLJA6c9FJXO",
+	"bYFLa7p02AZQrBQXrtvtxm710bJ3DXM57Is4jvviN1YiwY4D2jmbSC2Bt+/skY5lkMuMcLsvzCGNnO6D",
+	"amGVqjsCHvmbHTk6ATg8sCGR4OZ5Fr3ai3rdJ1Gv29vr7UfR2id6z542P7Ef7XV75on93pPmJx5H+/jE",
+	"wd4ePIFnwP0ewctPetEPO73ewf6KB/YeP8YHHkf7dkFXRAqcF5vnVQVy+5/YYmvZ6GZOBpw0L8wB4UcA",
+	"aKfPQgDUCqPcHav/bDKa4GiVfHbVuO6hgFLbsfk0BjCO0DLXo4y5XxliX8rT91Cbpxyil7/N6KRhIbUk",
+	"llUDcjJ860V761749GAQIkUQehttOfWm2sDyQgD/xmrxKZJIM+cpF6+YGOtJaBYOwfQ+X0LgeXFTHiAY",
+	"KGz6n0sjyn2tl46RGi2tzq1O3hdLlpgIfUr2JcsaPL683TDraAiCW5o0/uWFjsEE4OoQcuW0F9ubj5+S",
+	"I3Aa+TAy1JGrJgijBreJhxlKmTEq4DC0C8GBcIfCwSvnhfh3Ca78JfzmVwgAKZWGqs/CWe6Dyxz6IYp1",
+	"wc9h+mSDC2KDulKr3RCO3jj3MXVmvEMYsRPdbb2HGsw/Gk+9lwW/q3iZc5YwDhmIVYK2qtzoLWSd80I8",
+	"NBSMGdZqWv0lCubXUErKWvXx8N7rFbvv8BgbEFOpmuKsJNXbY6MnuuS8LI/SF/UCb04MdbYo5X1ly3kY",
+	"QfU3izZha77z3Hv2wrI1XXLcGAPh6uZgq2NuZBTQKO0gXKxhpfZLteaBT+2VGaLScBWWfgliIryV/DyM",
+	"FeqL5yw3tKWOR+MozZ9PotCfUGSVDG/VFylLuCFZQZE8CyTIhdlJ6MyXAOmLvW7Qy7wyxJWp2ockdpOK",
+	"j/piP2wikUWGeXjeVVp7/HG9R488woUNdam9cRC+Yf0QZjGmhnJrCeFXPu/btGjtR5AnXmvrSTeMYGyO",
+	"nvFQQpX8dmuosKcB0XYCDwKOK+wtqmPHwOuVLjsebngZGiZn6FoxR2dIk0uwToKpKkCc6Yuvw8WpJL0f",
+	"khiQIRWoT2by34TPBrn01kVE7VGJ0Dvk0+lxatuH0Lc9Q4ZeVeLjfAAcHGRo3YVWyRHxGZ6WlsSrmeW5",
+	"j2z4NfJMN7qVtVPg5y/s85dnnxdViCeM2yzEvUbMIC+1l/ju4TOWGJT0B4hBaI4x7Zv7SmswaY5sqNK4",
+	"p7a7BAIXuSIfMIuRW5omElbno5XaYxZ+yrm8SotQp+Tuci4QaFzmYSaW5xZlsOB2ZOvEgR5dVhwrY2i1",
+	"vzmP6sGzfbEyxIesj/AxK1ol0VwtCRZQAt0utwsbRA6r+ZS5oEfvtXeiPwCyAasFhypPJmQVqJ11Y2By",
+	"vO21oxgLSGJdKIu3u8SdBbvhZSAwxCVoxbIRsAhNLxkIiZ6DlHy/EDcG+1hUe4sOhvVKWZbaGCDTF0DK",
+	"e7A16yCzR+PIu50ITyuRPWGsDXh5wWhh5DzDEy2cjGN+htvZMOEJVWGjlpW7qSEnxqXE2a22L9sFvBMb",
+	"uX8DoB3VL4TbdTP/8vIIHhWeV6oY2mCYL4n3X8xND6/9pqk/jVoGhqcPLiNfT9h0E26+Ri+2He3+5H1y",
+	"n+5ZMx6VoQVILiNCk1wqqJiM983lHdu85AhU2iXFGSBT1jEP35VlpLa4B2i9PC2hNHFciHviGAAiQpYh",
+	"ByukdKRiKwX1ZbLy6vT1RWXqS4zNhS84X041yc2P6H4y3R5SR6iuzRc14VdfArB+S2nttN6bwgCBwS21",
+	"hLBkkVIF1JjIqUjllGB8cccHEe/tPyVDrtV2eZfG/IoJjEtWtvyxYknOtMWSA/dW6dAS2eLIR1lAVAgE",
+	"jIP71YiENvi4LyZUTRCmD8xpmRwb4W21GPbODPWB8ACg7V9IjoK+b3B4wjZFpbpjN0BNIE5J/PoB3b4I",
+	"OQ9PfOBuE4qHJSA0llS0THXFp73rLGUZ06w1fTlnV/LSRmxBS0c2fqqMWevtbZcGaQurYpG4AD6kL4IA",
+	"PKfK5dBuaukVyhlNpOI5DNeRipsT3u8gBHz3nVHtGtj/wfJq4bJ8SQf/VSD4mq24+zXJmUjVQ6LtKgtA",
+	"sQJht5riHXhooLJeX8iREcDt+Q+AEmOVyRmLbejYkCoWRtdDpQIwsKHEcvEcWiq9RLF7Iy4N/uVwzXNz",
+	"LlI5Lzvc720fQU6VzmXmAkoVB2Dan/9tn1w8J505zQUXY8yX+PnfHsOXaJ/bjrDwPaF9cTFh8wnNNUng",
+	"v53Ti7fkm6ff9Hb27XR+YEqPwf8OZqq9nX1VNh6RvZ3HKuqL/Z19FZHznQMVkYOdPVSY9nrXpIPeo22w",
+	"TzCzkBTdiOXCqqpnT6HHDCKJQrjhoxoEPpo8Mu7VlL6IfQeHZEQzhUDBV1xmaPZDACUwbjqM/QBSqi+4",
+	"uJIZmA8h2WUECMMYUjyXS5sD6L62ApfbwsO+iHE/wJwpiiyzuMnYJVflInTJsSZTaUTEqNfrBbPqC3Ow",
+	"j0is80IkmOPt0vhFeCLA+QQ5/R0s9O/SkfoiNgwBziRcK2IZehTIhxDJlbBouTSEnIu++PMJAUaeFjlT",
+	"GJpRKQoRkZyNi8y801Qfolk1hdGs4CPrwirvBz/lc6AiN/XhZ9s61hHW6cy/1hCB+QIi3Az9CI3oEeEC",
+	"LPxXK8NozcG4hwjQV+hQqPVu/Qure9fyHvr+Vs7JlIpF/U5GNVSNKgGNME1UB0R61Sjd780QAPshAsB+",
+	"BQBg/zMDAOB9WmUtZjmHAA+t/Iwjn4Ag0pI0fgEGuH+x6HnOR9pJHDZ/3l1oqLoDPiwrZtSYudmcKud9",
+	"qFrOKHU9ZF120LZNL5VAA+w3rgXmlmwhImlO5+g6K2UdkFIOQ9nBpsSiERZZGSRzMIKn3XyBMhEi41hR",
+	"CNfZRwS51kD0wFvBwKadMVs6HuMOIUc+M7z7vEEYMeIKjHod81tZ0/0LD/zCA/9/zAP5lI7Zrroa/+56",
+	"mlUZYEPuREM5BkMavrCxh6j/XJJeDNMB2h0RpGL3zJVM3ywpcq4XQBWHjOYsPy70ZOvwx/fmHNkO6/fh",
+	"NMikLrBQdVBVLAj56JTKuNruBliIhVANaWsvEU8mbMtdNPTAB8GNhouqoEm7JsuNnoorlivAxbKA5EFh",
+	"7WqaedheiF++3Oifj105HTBqBEWoq4CPbN70chmCVIUwinygQRD34/lmUqIfVXqx7rWlbpoLZUZlXFKJ",
+	"WFKvr+Jb/5A0NIwgyYD0a5EIvWjBc1LiMZOZzHjCWbisDrqwodWzU7RqhY9bs1YDO+BXTDDl4ZTgzynT",
+	"OU/ctLgiqUx8XlwlFQ639f2n/y8AAP//",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
