@@ -21,6 +21,16 @@ const (
 	codeForeignKeyViolation = "23503"
 )
 
+// constraintOf names the constraint a PostgreSQL error is about, "" when
+// none (a unique violation on a primary key names the key's index).
+func constraintOf(err error) string {
+	var pgErr *pgconn.PgError
+	if errors.As(err, &pgErr) {
+		return pgErr.ConstraintName
+	}
+	return ""
+}
+
 // classify wraps err with the operation that failed. A database that cannot be
 // reached (refused or broken connection, shutdown, timeout, too many
 // connections) becomes a KindUnavailable *Error so that the api answers 503;

@@ -288,7 +288,9 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 
 // CreateRun stores a run, its readings and samples, its fitted curves (each
 // pending review) and their audit rows in one transaction, and returns the
-// ids it assigned. The run's rows go to the database in one batch.
+// ids it assigned. The whole write is one pgx batch, which PostgreSQL runs as
+// one implicit transaction (the batch ends with a single Sync): one round
+// trip, commit included.
 //
 // With an IdempotencyKey the key is claimed first, in the same transaction:
 // a concurrent request with the same key (and token) waits for this one to
@@ -327,37 +329,12 @@ func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (
 		return nil, fmt.Errorf("store: marshal run payload: %w", err)
 	}
 	var replay *RunCreated
-	err = db.inTx(ctx, func(tx pgx.Tx) error {
-		replay = nil
-		if in.IdempotencyKey != "" {
-			var claimed bool
-			err := tx.QueryRow(ctx, sqlClaimKey, in.TokenID, in.IdempotencyKey, in.RequestHash, runID, body).Scan(&claimed)
-			if errors.Is(err, pgx.ErrNoRows) {
-				// Someone holds the key and has committed: replay or refuse.
-				replay, err = storedRun(ctx, tx, in.TokenID, in.IdempotencyKey, in.RequestHash)
-				if KindOf(err) == KindNotFound {
-					return fmt.Errorf("store: idempotency key %q vanished while claimed", in.IdempotencyKey)
-				}
-				return err
-			}
-			if err != nil {
-				return classify("claim idempotency key", err)
-			}
+	for attempt := 1; ; attempt++ {
+		replay, err = db.sendRun(ctx, &in, runID, body, payload, prepared)
+		if err == nil || !retryable(err) || attempt == maxTxAttempts {
+			break
 		}
-		// A batch is built per attempt: inTx may run this function again.
-		batch, err := runBatch(&in, runID, payload, prepared)
-		if err != nil {
-			return err
-		}
-		if err := tx.SendBatch(ctx, batch).Close(); err != nil {
-			if pgCode(err) == codeForeignKeyViolation {
-				return &Error{Kind: KindInvalid, Field: "/method",
-					Message: fmt.Sprintf("method %q has no revision %d", in.Method, in.MethodRevision), Err: err}
-			}
-			return classify("insert run "+runID, err)
-		}
-		return nil
-	})
+	}
 	if err != nil {
 		return nil, classify("create run", err)
 	}
@@ -367,14 +344,45 @@ func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (
 	return created, nil
 }
 
-// runBatch queues every row of a new run: the run, its readings (one
-// statement over arrays), its samples, its curves and the audit rows.
-func runBatch(in *RunInput, runID string, payload []byte, curves []preparedCurve) (*pgx.Batch, error) {
+// sendRun writes the run in one batch. When the claim of the idempotency key
+// meets a key another request committed, the whole batch rolls back and the
+// stored response is replayed (or refused, for another body).
+func (db *DB) sendRun(ctx context.Context, in *RunInput, runID string, body, payload []byte, prepared []preparedCurve) (*RunCreated, error) {
+	// A batch is built per attempt: a retried batch is sent again whole.
+	batch, err := runBatch(in, runID, body, payload, prepared)
+	if err != nil {
+		return nil, err
+	}
+	err = db.Pool.SendBatch(ctx, batch).Close()
+	switch {
+	case err == nil:
+		return nil, nil
+	case in.IdempotencyKey != "" && pgCode(err) == codeUniqueViolation && constraintOf(err) == constraintIdempotencyKey:
+		// Someone holds the key and has committed: replay or refuse.
+		replay, err := storedRun(ctx, db.Pool, in.TokenID, in.IdempotencyKey, in.RequestHash)
+		if KindOf(err) == KindNotFound {
+			return nil, fmt.Errorf("store: idempotency key %q vanished while claimed", in.IdempotencyKey)
+		}
+		return replay, err
+	case pgCode(err) == codeForeignKeyViolation:
+		return nil, &Error{Kind: KindInvalid, Field: "/method",
+			Message: fmt.Sprintf("method %q has no revision %d", in.Method, in.MethodRevision), Err: err}
+	}
+	return nil, fmt.Errorf("store: insert run %s: %w", runID, err)
+}
+
+// runBatch queues every row of a new run: the claim of its idempotency key
+// (when it has one), the run, its readings (one statement over arrays), its
+// samples, its curves and the audit rows.
+func runBatch(in *RunInput, runID string, body, payload []byte, curves []preparedCurve) (*pgx.Batch, error) {
 	var operator *string
 	if in.Operator != "" {
 		operator = &in.Operator
 	}
 	b := &pgx.Batch{}
+	if in.IdempotencyKey != "" {
+		b.Queue(sqlClaimKey, in.TokenID, in.IdempotencyKey, in.RequestHash, runID, body)
+	}
 	b.Queue(sqlInsertRun, runID, in.Method, in.MethodRevision, in.Instrument, in.AcquiredAt, operator,
 		in.Actor, in.SourceFormat, in.RequestHash, payload)
 
