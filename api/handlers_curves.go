@@ -96,9 +96,11 @@ func (s *Server) CreatePredictions(ctx context.Context, req oapi.CreatePredictio
 	if err != nil {
 		return nil, err
 	}
-	status, err := s.db.CurveStatus(ctx, id)
-	if err != nil {
-		return nil, err
+	status, ok := prefetchedStatus(ctx, id)
+	if !ok {
+		if status, err = s.db.CurveStatus(ctx, id); err != nil {
+			return nil, err
+		}
 	}
 	r := c.Report
 	if len(r.Coefficients) == 0 {
