@@ -42,6 +42,15 @@ func requestValidator(doc *openapi3.T) (echo.MiddlewareFunc, error) {
 	}
 	return func(next echo.HandlerFunc) echo.HandlerFunc {
 		return func(c echo.Context) error {
+			if c.Path() == predictionRoute && c.Request().Method == http.MethodPost {
+				ok, err := predictionFastPath(c)
+				if err != nil {
+					return err
+				}
+				if ok {
+					return next(c)
+				}
+			}
 			route, _, ferr := router.FindRoute(c.Request())
 			if ferr != nil {
 				if errors.Is(ferr, routers.ErrMethodNotAllowed) {
