@@ -33,8 +33,6 @@ func run(ctx context.Context, args []string, getenv func(string) string, stdout,
 		}
 		return err
 	}
-	ctx, cancel := context.WithTimeout(ctx, cfg.Budget)
-	defer cancel()
 	h := &harness{cfg: cfg, out: stdout, log: stderr, started: time.Now()}
 	defer h.close()
 	return h.run(ctx)
@@ -90,6 +88,8 @@ func (h *harness) run(ctx context.Context) error {
 	if err != nil {
 		return err
 	}
+	ctx, cancel := context.WithTimeout(ctx, h.cfg.Budget)
+	defer cancel()
 	if h.cfg.has("startup") {
 		if err := h.startup(ctx); err != nil {
 			return fmt.Errorf("startup: %w", err)
