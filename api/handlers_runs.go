@@ -148,7 +148,7 @@ func csvProblem(err error) error {
 	}
 	fields := make([]ProblemField, 0, len(ce.Errors))
 	for _, e := range ce.Errors {
-		fields = append(fields, ProblemField{Pointer: e.Pointer, Detail: e.Detail})
+		fields = append(fields, ProblemField(e))
 	}
 	detail := "the CSV body does not follow the documented layout"
 	if len(fields) == 1 {
@@ -168,7 +168,12 @@ func (s *Server) prepareRun(m *store.Method, body *oapi.RunRequest) (store.RunIn
 		Operator:       deref(body.Operator),
 	}
 	type levelKey struct{ analyte, level string }
+	type concKey struct {
+		analyte string
+		conc    float64
+	}
 	seen := map[levelKey]bool{}
+	concAt := map[concKey]string{} // level label holding each concentration
 	var order []string
 	points := map[string][]calib.Point{}
 	for i, st := range body.Standards {
@@ -181,6 +186,11 @@ func (s *Server) prepareRun(m *store.Method, body *oapi.RunRequest) (store.RunIn
 			return in, nil, store.FieldError(pointer("standards", i, "level"), "level %q of %s appears twice; send replicates as several responses of one standard", st.Level, a)
 		}
 		seen[k] = true
+		ck := concKey{a, st.Concentration}
+		if other, dup := concAt[ck]; dup {
+			return in, nil, store.FieldError(pointer("standards", i, "concentration"), "levels %q and %q of %s share the concentration %v; send replicates as several responses of one standard", other, st.Level, a, st.Concentration)
+		}
+		concAt[ck] = string(st.Level)
 		if _, ok := points[a]; !ok {
 			order = append(order, a)
 		}
@@ -191,8 +201,15 @@ func (s *Server) prepareRun(m *store.Method, body *oapi.RunRequest) (store.RunIn
 			Concentration: st.Concentration, Responses: st.Responses})
 	}
 	if body.Samples != nil {
+		type sampleKey struct{ analyte, id string }
+		seenSample := map[sampleKey]bool{}
 		for i, sm := range *body.Samples {
 			a := string(sm.Analyte)
+			sk := sampleKey{a, string(sm.ID)}
+			if seenSample[sk] {
+				return in, nil, store.FieldError(pointer("samples", i, "id"), "sample %q of %s appears twice; send replicates as several responses of one sample", sm.ID, a)
+			}
+			seenSample[sk] = true
 			if _, ok := m.Analyte(a); !ok {
 				return in, nil, store.FieldError(pointer("samples", i, "analyte"), "method %s does not list the analyte %q", m.Name, a)
 			}

@@ -111,7 +111,10 @@ func problemFor(err error) Problem {
 	var se *store.Error
 	if errors.As(err, &se) {
 		var fields []ProblemField
-		if se.Field != "" {
+		for _, f := range se.Fields {
+			fields = append(fields, ProblemField{Pointer: f.Field, Detail: f.Message})
+		}
+		if len(fields) == 0 && se.Field != "" {
 			fields = []ProblemField{{Pointer: se.Field, Detail: se.Message}}
 		}
 		return newProblem(status, se.Message, fields...).p

@@ -98,8 +98,10 @@ func validationProblem(he *echo.HTTPError) *problemError {
 	var fields []ProblemField
 	var walk func(err error)
 	walk = func(err error) {
-		var me openapi3.MultiError
-		if errors.As(err, &me) {
+		// A type assertion, not errors.As: MultiError's As method would also
+		// match a RequestError that wraps one, and the parameter or body it
+		// names would be lost.
+		if me, ok := err.(openapi3.MultiError); ok {
 			for _, e := range me {
 				walk(e)
 			}

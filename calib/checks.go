@@ -1,12 +1,6 @@
 package calib
 
-import (
-	"cmp"
-	"math"
-	"slices"
-	"strings"
-	"sync"
-)
+import "math"
 
 // mandatoryNote ends the Detail of a mandatory check that could not be
 // computed.
@@ -48,7 +42,11 @@ func checkSource(name string, m Model) string {
 // computeChecks evaluates every check of the policy on the fit f of the
 // dataset d with normalised weights w.
 func computeChecks(r *Report, d *dataset, des *design, f lsq, w []float64, pol Policy) []Check {
-	nz := make([]float64, 0, len(d.levels))
+	var nzBuf [64]float64
+	nz := nzBuf[:0]
+	if len(d.levels) > len(nzBuf) {
+		nz = make([]float64, 0, len(d.levels))
+	}
 	for _, lv := range d.levels {
 		nz = append(nz, lv.x)
 	}
@@ -95,8 +93,10 @@ func minLevelsCheck(xs []float64, pol Policy) Check {
 	}
 	c := Check{Name: CheckMinLevels, Statistic: float64(k), Limit: float64(pol.MinLevels), Computed: true,
 		Passed: k >= pol.MinLevels, Source: checkSource(CheckMinLevels, "")}
-	c.Detail = itoa(k) + " non-zero concentration level(s) in the fit; at least " + itoa(pol.MinLevels) +
-		" are required. Zero-concentration standards (blank, zero sample) are not counted."
+	t := newText()
+	defer t.free()
+	c.Detail = t.i(k).s(" non-zero concentration level(s) in the fit; at least ").i(pol.MinLevels).
+		s(" are required. Zero-concentration standards (blank, zero sample) are not counted.").str()
 	return c
 }
 
@@ -114,46 +114,51 @@ func mandelCheck(r *Report, d *dataset, des *design, f lsq, pol Policy) Check {
 	if des.k < 3 {
 		return notComputed(CheckMandel, "the quadratic term x² is outside the numerically usable range")
 	}
-	line, quad := f, f
+	lineSSR, quadSSR := f.ssr, f.ssr
 	var err error
 	if r.Model != Linear {
-		if line, err = des.fit(Linear); err != nil {
+		if lineSSR, err = des.fitSSR(Linear); err != nil {
 			return notComputed(CheckMandel, "the line could not be fitted: "+err.Error())
 		}
 	}
 	if r.Model != Quadratic {
-		if quad, err = des.fit(Quadratic); err != nil {
+		if quadSSR, err = des.fitSSR(Quadratic); err != nil {
 			return notComputed(CheckMandel, "the quadratic could not be fitted: "+err.Error())
 		}
 	}
-	ds2 := math.Max(line.ssr-quad.ssr, 0) // (N−2)s1² − (N−3)s2²
-	s22 := quad.ssr / float64(n-3)
+	ds2 := max(lineSSR-quadSSR, 0) // (N−2)s1² − (N−3)s2²
+	s22 := quadSSR / float64(n-3)
 	if !(s22 > 0) {
 		return notComputed(CheckMandel, "the quadratic fits the readings exactly, so the test statistic is undefined")
 	}
 	pg := ds2 / s22
 	fc := fQuantile(1-pol.MandelAlpha, 1, n-3)
 	c := Check{Name: CheckMandel, Statistic: pg, Limit: fc, Computed: true}
-	crit := "F(" + fmtG(1-pol.MandelAlpha) + "; 1, " + itoa(n-3) + ") = " + fmtG(fc)
 	better := pg > fc
-	if r.Model == Quadratic {
-		c.Passed = better
-		if better {
-			c.Detail = "PG = " + fmtG(pg) + " > " + crit + ": the quadratic fits significantly better than a line, so the quadratic model is justified."
-		} else {
-			c.Detail = "PG = " + fmtG(pg) + " ≤ " + crit + ": the quadratic does not fit significantly better than a line; a linear model should be used."
-		}
-		return c
-	}
-	c.Passed = !better
+	t := newText()
+	defer t.free()
+	t.s("PG = ").g(pg)
 	if better {
-		c.Detail = "PG = " + fmtG(pg) + " > " + crit + ": a quadratic fits significantly better, so the response is not linear over this range; consider a narrower range or the quadratic model."
+		t.s(" > ")
 	} else {
-		c.Detail = "PG = " + fmtG(pg) + " ≤ " + crit + ": a quadratic does not fit significantly better; the response is linear over this range."
+		t.s(" ≤ ")
+	}
+	t.s("F(").gc(1 - pol.MandelAlpha).s("; 1, ").i(n - 3).s(") = ").gc(fc)
+	switch {
+	case r.Model == Quadratic && better:
+		t.s(": the quadratic fits significantly better than a line, so the quadratic model is justified.")
+	case r.Model == Quadratic:
+		t.s(": the quadratic does not fit significantly better than a line; a linear model should be used.")
+	case better:
+		t.s(": a quadratic fits significantly better, so the response is not linear over this range; consider a narrower range or the quadratic model.")
+	default:
+		t.s(": a quadratic does not fit significantly better; the response is linear over this range.")
 	}
 	if r.Model == LinearOrigin {
-		c.Detail += " (Tested on the line with intercept, which shows the curvature of the readings.)"
+		t.s(" (Tested on the line with intercept, which shows the curvature of the readings.)")
 	}
+	c.Passed = better == (r.Model == Quadratic)
+	c.Detail = t.str()
 	return c
 }
 
@@ -184,16 +189,25 @@ func lackOfFitCheck(d *dataset, f lsq, w []float64, pol Policy) Check {
 	if !(sspe > 0) {
 		return notComputed(CheckLackOfFit, "the replicates are identical (pure error 0), so the F ratio is undefined")
 	}
-	sslof := math.Max(f.ssr-sspe, 0)
+	sslof := max(f.ssr-sspe, 0)
 	fs := (sslof / float64(k-p)) / (sspe / float64(n-k))
 	fc := fQuantile(1-pol.LackOfFitAlpha, k-p, n-k)
 	c := Check{Name: CheckLackOfFit, Statistic: fs, Limit: fc, Computed: true, Passed: fs <= fc}
-	crit := "F(" + fmtG(1-pol.LackOfFitAlpha) + "; " + itoa(k-p) + ", " + itoa(n-k) + ") = " + fmtG(fc)
+	t := newText()
+	defer t.free()
+	t.s("F = ").g(fs)
 	if c.Passed {
-		c.Detail = "F = " + fmtG(fs) + " ≤ " + crit + ": the scatter of the level means about the curve is consistent with the scatter of the replicates."
+		t.s(" ≤ ")
 	} else {
-		c.Detail = "F = " + fmtG(fs) + " > " + crit + ": the level means deviate from the curve more than the replicates scatter; the model does not describe the data."
+		t.s(" > ")
 	}
+	t.s("F(").gc(1 - pol.LackOfFitAlpha).s("; ").i(k - p).s(", ").i(n - k).s(") = ").gc(fc)
+	if c.Passed {
+		t.s(": the scatter of the level means about the curve is consistent with the scatter of the replicates.")
+	} else {
+		t.s(": the level means deviate from the curve more than the replicates scatter; the model does not describe the data.")
+	}
+	c.Detail = t.str()
 	return c
 }
 
@@ -216,17 +230,25 @@ func homoscedasticityCheck(r *Report, d *dataset, pol Policy) Check {
 	pg := big / small
 	fc := fQuantile(1-pol.HomoscedasticityAlpha, dn, dd)
 	c := Check{Name: CheckHomoscedasticity, Statistic: pg, Limit: fc, Computed: true, Passed: pg <= fc}
-	crit := "F(" + fmtG(1-pol.HomoscedasticityAlpha) + "; " + itoa(dn) + ", " + itoa(dd) + ") = " + fmtG(fc)
+	t := newText()
+	defer t.free()
+	t.s("Variance ratio ").g(pg)
 	if c.Passed {
-		c.Detail = "Variance ratio " + fmtG(pg) + " ≤ " + crit + ": the response variance at the lowest and highest standard does not differ significantly."
+		t.s(" ≤ ")
 	} else {
-		c.Detail = "Variance ratio " + fmtG(pg) + " > " + crit + ": the response variance differs between the ends of the range (heteroscedastic)"
-		if r.Weighting == WeightNone {
-			c.Detail += "; a weighted fit is called for."
-		} else {
-			c.Detail += "; this is expected with " + string(r.Weighting) + " weighting, which accounts for it."
-		}
+		t.s(" > ")
 	}
+	t.s("F(").gc(1 - pol.HomoscedasticityAlpha).s("; ").i(dn).s(", ").i(dd).s(") = ").gc(fc)
+	switch {
+	case c.Passed:
+		t.s(": the response variance at the lowest and highest standard does not differ significantly.")
+	case r.Weighting == WeightNone:
+		t.s(": the response variance differs between the ends of the range (heteroscedastic); a weighted fit is called for.")
+	default:
+		t.s(": the response variance differs between the ends of the range (heteroscedastic); this is expected with ").
+			s(string(r.Weighting)).s(" weighting, which accounts for it.")
+	}
+	c.Detail = t.str()
 	return c
 }
 
@@ -243,9 +265,20 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 			break
 		}
 	}
-	total, pass := 0, 0
-	levelsOK := make(map[float64]bool)
-	var bad []string
+	total, pass, levelsOK := 0, 0, 0
+	// passed marks the levels (by index in d.levels) with a passing standard.
+	var passBuf [64]bool
+	passed := passBuf[:]
+	if len(d.levels) > len(passBuf) {
+		passed = make([]bool, len(d.levels))
+	}
+	var bad *text // the standards outside tolerance, taken from the pool when there is one
+	defer func() {
+		if bad != nil {
+			bad.free()
+		}
+	}()
+	nbad := 0
 	for _, i := range d.idx {
 		p := &r.Points[i]
 		if p.X == 0 {
@@ -258,62 +291,71 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 		}
 		if p.HasRelativeError && math.Abs(p.RelativeErrorPct) <= tol {
 			pass++
-			levelsOK[p.X] = true
+			if l := d.levelOf(p.X); !passed[l] {
+				passed[l] = true
+				levelsOK++
+			}
 			continue
 		}
-		if len(bad) < 10 {
-			s := pointName(p, i) + ": "
-			if p.HasRelativeError {
-				s += fmtG(p.RelativeErrorPct) + " %"
+		if nbad++; nbad <= 10 {
+			if bad == nil {
+				bad = newText()
 			} else {
-				s += "cannot be read back"
+				bad.s("; ")
 			}
-			bad = append(bad, s)
+			bad.point(p, i).s(": ")
+			if p.HasRelativeError {
+				bad.g(p.RelativeErrorPct).s(" %")
+			} else {
+				bad.s("cannot be read back")
+			}
 		}
 	}
 	if total == 0 {
 		return notComputed(CheckBackCalculation, "no fitted standard has a non-zero nominal concentration")
 	}
+	t := newText()
+	defer t.free()
 	frac := float64(pass) / float64(total)
 	c := Check{Name: CheckBackCalculation, Statistic: frac, Limit: pol.BackCalcMinPassFraction, Computed: true,
-		Passed: frac >= pol.BackCalcMinPassFraction && len(levelsOK) >= pol.MinLevels}
-	c.Detail = itoa(pass) + " of " + itoa(total) + " standards read back within ±" + fmtG(pol.BackCalcTolerancePct) +
-		" % of nominal (±" + fmtG(pol.BackCalcLowTolerancePct) + " % at the lowest level), covering " + itoa(len(levelsOK)) +
-		" level(s); required: a fraction of " + fmtG(pol.BackCalcMinPassFraction) + " and " + itoa(pol.MinLevels) + " levels."
-	if len(bad) > 0 {
-		c.Detail += " Outside tolerance: " + strings.Join(bad, "; ") + "."
+		Passed: frac >= pol.BackCalcMinPassFraction && levelsOK >= pol.MinLevels}
+	t.i(pass).s(" of ").i(total).s(" standards read back within ±").gc(pol.BackCalcTolerancePct).
+		s(" % of nominal (±").gc(pol.BackCalcLowTolerancePct).s(" % at the lowest level), covering ").i(levelsOK).
+		s(" level(s); required: a fraction of ").gc(pol.BackCalcMinPassFraction).s(" and ").i(pol.MinLevels).s(" levels.")
+	if bad != nil {
+		t.s(" Outside tolerance: ").add(bad).s(".")
 	}
+	c.Detail = t.str()
 	return c
 }
 
 // pointName names a reading for QA staff: its level label and index.
 func pointName(p *PointResult, i int) string {
-	if p.Level != "" {
-		return p.Level + " (reading " + itoa(i) + ", x = " + fmtG(p.X) + ")"
-	}
-	return "reading " + itoa(i) + " (x = " + fmtG(p.X) + ")"
+	t := newText()
+	defer t.free()
+	return t.point(p, i).str()
 }
 
 // rSquaredCheck: R² ≥ MinRSquared (US EPA SW-846 8000D).
 func rSquaredCheck(r *Report, pol Policy) Check {
 	c := Check{Name: CheckRSquared, Statistic: r.RSquared, Limit: pol.MinRSquared, Computed: true, Passed: r.RSquared >= pol.MinRSquared}
-	c.Detail = "R² = " + strconvF(r.RSquared) + " against a minimum of " + fmtG(pol.MinRSquared)
+	t := newText()
+	defer t.free()
+	t.s("R² = ")
+	if r.RSquared > 0.999 && r.RSquared < 1 {
+		t.g10(r.RSquared)
+	} else {
+		t.g(r.RSquared)
+	}
+	t.s(" against a minimum of ").gc(pol.MinRSquared)
 	switch {
 	case r.Model == LinearOrigin:
-		c.Detail += " (uncentred R² of the origin model, which is larger than a centred one)"
+		t.s(" (uncentred R² of the origin model, which is larger than a centred one)")
 	case r.Weighting != WeightNone:
-		c.Detail += " (weighted)"
+		t.s(" (weighted)")
 	}
-	c.Detail += ". R² alone does not show linearity; read it with the back-calculation and Mandel checks."
+	c.Detail = t.s(". R² alone does not show linearity; read it with the back-calculation and Mandel checks.").str()
 	return c
-}
-
-// strconvF formats an R² with enough digits to tell 0.9999 from 0.99995.
-func strconvF(v float64) string {
-	if v > 0.999 && v < 1 {
-		return fmtG10(v)
-	}
-	return fmtG(v)
 }
 
 // rseCheck: RSE = 100·√{Σ[(x'ᵢ − xᵢ)/xᵢ]²/(n − p)} over the fitted standards
@@ -340,7 +382,10 @@ func rseCheck(r *Report, d *dataset, pol Policy) Check {
 	}
 	rse := 100 * math.Sqrt(ss/float64(n-p))
 	c := Check{Name: CheckRSE, Statistic: rse, Limit: pol.MaxRSEPct, Computed: true, Passed: rse <= pol.MaxRSEPct}
-	c.Detail = "RSE = " + fmtG(rse) + " % over " + itoa(n) + " standards (n − p = " + itoa(n-p) + ") against a maximum of " + fmtG(pol.MaxRSEPct) + " %."
+	t := newText()
+	defer t.free()
+	c.Detail = t.s("RSE = ").g(rse).s(" % over ").i(n).s(" standards (n − p = ").i(n - p).
+		s(") against a maximum of ").gc(pol.MaxRSEPct).s(" %.").str()
 	return c
 }
 
@@ -369,195 +414,27 @@ func interceptCheck(r *Report, des *design, f lsq, pol Policy) Check {
 	ts := b0 / se
 	tc := studentT(1-pol.InterceptAlpha/2, df)
 	c := Check{Name: CheckIntercept, Statistic: ts, Limit: tc, Computed: true, Passed: math.Abs(ts) <= tc}
-	crit := "t(" + fmtG(1-pol.InterceptAlpha/2) + "; " + itoa(df) + ") = " + fmtG(tc)
-	head := "Intercept " + fmtG(b0) + " ± " + fmtG(se) + " (SE), t = " + fmtG(ts)
+	t := newText()
+	defer t.free()
+	t.s("Intercept ")
 	if r.Model == LinearOrigin {
-		head = "Intercept of the unconstrained line " + fmtG(b0) + " ± " + fmtG(se) + " (SE), t = " + fmtG(ts)
+		t.s("of the unconstrained line ")
 	}
+	t.g(b0).s(" ± ").g(se).s(" (SE), t = ").g(ts)
 	if c.Passed {
-		c.Detail = head + ", |t| ≤ " + crit + ": the intercept does not differ significantly from zero."
+		t.s(", |t| ≤ ")
 	} else {
-		c.Detail = head + ", |t| > " + crit + ": the intercept differs significantly from zero"
-		if r.Model == LinearOrigin {
-			c.Detail += ", so forcing the curve through the origin is not justified."
-		} else {
-			c.Detail += " (blank contribution or matrix effect); review the blank."
-		}
+		t.s(", |t| > ")
 	}
-	return c
-}
-
-// runsCheck: Wald–Wolfowitz runs test on the residual signs of the fitted
-// readings sorted by concentration (replicates by response, so the order
-// does not depend on input order); zero residuals are dropped. Few runs
-// indicate curvature, so the test is one-sided: P(R ≤ r_obs) from the exact
-// distribution against RunsAlpha. Limit is the largest significant number
-// of runs (0 when none is: too few residuals of a sign).
-func runsCheck(r *Report, d *dataset, f lsq, pol Policy) Check {
-	order := make([]int, len(d.x))
-	for i := range order {
-		order[i] = i
+	t.s("t(").gc(1 - pol.InterceptAlpha/2).s("; ").i(df).s(") = ").gc(tc)
+	switch {
+	case c.Passed:
+		t.s(": the intercept does not differ significantly from zero.")
+	case r.Model == LinearOrigin:
+		t.s(": the intercept differs significantly from zero, so forcing the curve through the origin is not justified.")
+	default:
+		t.s(": the intercept differs significantly from zero (blank contribution or matrix effect); review the blank.")
 	}
-	slices.SortFunc(order, func(a, b int) int {
-		if c := cmp.Compare(d.x[a], d.x[b]); c != 0 {
-			return c
-		}
-		return cmp.Compare(d.y[a], d.y[b])
-	})
-	scale := 0.0
-	for _, y := range d.y {
-		scale = math.Max(scale, math.Abs(y))
-	}
-	n1, n2, runs, last := 0, 0, 0, 0
-	for _, i := range order {
-		e := f.resid[i]
-		if math.Abs(e) <= 1e-13*scale {
-			continue
-		}
-		sg := 1
-		if e < 0 {
-			sg = -1
-		}
-		if sg > 0 {
-			n1++
-		} else {
-			n2++
-		}
-		if sg != last {
-			runs++
-			last = sg
-		}
-	}
-	if n1 == 0 || n2 == 0 {
-		return notComputed(CheckResidualRuns, "every non-zero residual has the same sign, so the runs test is undefined (this itself points to a biased curve)")
-	}
-	dist := runsDist(n1, n2)
-	pv, cum, crit := 0.0, 0.0, 0
-	for k := 2; k < len(dist); k++ {
-		cum += dist[k]
-		if k == runs {
-			pv = math.Min(cum, 1)
-		}
-		if cum <= pol.RunsAlpha {
-			crit = k
-		}
-	}
-	c := Check{Name: CheckResidualRuns, Statistic: float64(runs), Limit: float64(crit), Computed: true, Passed: pv > pol.RunsAlpha}
-	c.Detail = itoa(runs) + " runs of residual signs (" + itoa(n1) + " positive, " + itoa(n2) + " negative), P(R ≤ " + itoa(runs) + ") = " + fmtG(pv)
-	if c.Passed {
-		c.Detail += " > " + fmtG(pol.RunsAlpha) + ": no sign of systematic curvature."
-	} else {
-		c.Detail += " ≤ " + fmtG(pol.RunsAlpha) + ": too few runs, the residuals follow a pattern (curvature or a wrong model)."
-	}
-	if crit == 0 {
-		c.Detail += " With so few residuals of each sign no run count is significant; the test has no power here."
-	}
-	return c
-}
-
-// runsDist returns P(R = r) for r = 0..n1+n2, the exact distribution of
-// the number of runs R in a random sequence of n1 and n2 signs (Wald &
-// Wolfowitz 1940): P(R = 2h) = 2·C(n1−1, h−1)·C(n2−1, h−1)/C(n1+n2, n1),
-// P(R = 2h+1) = [C(n1−1, h)·C(n2−1, h−1) + C(n1−1, h−1)·C(n2−1, h)]/C(n1+n2, n1).
-// Binomials come from log-gamma, so large runs do not overflow.
-func runsDist(n1, n2 int) []float64 {
-	if n1+n2 <= maxCachedRuns {
-		if v, ok := runsCache.Load([2]int{n1, n2}); ok {
-			return v.([]float64)
-		}
-	}
-	p := computeRunsDist(n1, n2)
-	if n1+n2 <= maxCachedRuns {
-		runsCache.Store([2]int{n1, n2}, p)
-	}
-	return p
-}
-
-// runsCache holds runsDist by (n1, n2) for runs of up to maxCachedRuns
-// readings (at most 200² small entries); the same splits recur run after
-// run. Callers must not modify the returned slice.
-var runsCache sync.Map
-
-const maxCachedRuns = 200
-
-func computeRunsDist(n1, n2 int) []float64 {
-	n := n1 + n2
-	lt := lchoose(n, n1)
-	a := make([]float64, n1+1) // log C(n1−1, h)
-	b := make([]float64, n2+1) // log C(n2−1, h)
-	for h := range a {
-		a[h] = lchoose(n1-1, h)
-	}
-	for h := range b {
-		b[h] = lchoose(n2-1, h)
-	}
-	at := func(v []float64, h int) float64 {
-		if h < 0 || h >= len(v) {
-			return math.Inf(-1)
-		}
-		return v[h]
-	}
-	p := make([]float64, n+1)
-	for r := 2; r <= n; r++ {
-		h := r / 2
-		if r%2 == 0 {
-			p[r] = 2 * math.Exp(at(a, h-1)+at(b, h-1)-lt)
-		} else {
-			p[r] = math.Exp(at(a, h)+at(b, h-1)-lt) + math.Exp(at(a, h-1)+at(b, h)-lt)
-		}
-	}
-	return p
-}
-
-// runsCDF returns P(R ≤ r) (see runsDist).
-func runsCDF(r, n1, n2 int) float64 {
-	p := runsDist(n1, n2)
-	var c float64
-	for k := 2; k <= r && k < len(p); k++ {
-		c += p[k]
-	}
-	return math.Min(c, 1)
-}
-
-// lchoose returns log C(n, k), −Inf when k < 0 or k > n.
-func lchoose(n, k int) float64 {
-	if k < 0 || k > n || n < 0 {
-		return math.Inf(-1)
-	}
-	a, _ := math.Lgamma(float64(n + 1))
-	b, _ := math.Lgamma(float64(k + 1))
-	c, _ := math.Lgamma(float64(n - k + 1))
-	return a - b - c
-}
-
-// outlierCheck: every fitted reading must have |internally studentised
-// residual| ≤ OutlierStudentized and Cook's distance ≤ OutlierCooksD
-// (common practice). Statistic is the largest |studentised residual|.
-func outlierCheck(r *Report, d *dataset, pol Policy) Check {
-	maxR, maxD := 0.0, 0.0
-	var bad []string
-	lev1 := 0
-	for _, i := range d.idx {
-		p := &r.Points[i]
-		if 1-p.Leverage <= 1e-10 {
-			lev1++
-		}
-		a := math.Abs(p.Studentized)
-		maxR = math.Max(maxR, a)
-		maxD = math.Max(maxD, p.CooksDistance)
-		if (a > pol.OutlierStudentized || p.CooksDistance > pol.OutlierCooksD) && len(bad) < 10 {
-			bad = append(bad, pointName(p, i)+": studentised "+fmtG(p.Studentized)+", Cook's D "+fmtG(p.CooksDistance))
-		}
-	}
-	c := Check{Name: CheckOutliers, Statistic: maxR, Limit: pol.OutlierStudentized, Computed: true,
-		Passed: maxR <= pol.OutlierStudentized && maxD <= pol.OutlierCooksD}
-	c.Detail = "Largest |studentised residual| " + fmtG(maxR) + " (limit " + fmtG(pol.OutlierStudentized) +
-		"), largest Cook's distance " + fmtG(maxD) + " (limit " + fmtG(pol.OutlierCooksD) + ")."
-	if len(bad) > 0 {
-		c.Detail += " Flagged: " + strings.Join(bad, "; ") + "."
-	}
-	if lev1 > 0 {
-		c.Detail += " " + itoa(lev1) + " reading(s) have leverage 1 (the curve passes through them), so their residuals cannot be studentised."
-	}
+	c.Detail = t.str()
 	return c
 }

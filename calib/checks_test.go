@@ -302,3 +302,25 @@ func TestPredictFlags(t *testing.T) {
 		}
 	})
 }
+
+// TestExcludedPoints: an excluded reading is not in the fit (the fit equals
+// the fit without it) but is still reported, back-calculated, with weight 0.
+func TestExcludedPoints(t *testing.T) {
+	pts := photometerPoints()
+	pts[9].Excluded = true
+	pts[9].Y *= 1.5 // would be an outlier if fitted
+	with := fitOrFatal(t, pts, Options{Weighting: WeightInvX2})
+	without := fitOrFatal(t, append(append([]Point(nil), pts[:9]...), pts[10:]...), Options{Weighting: WeightInvX2})
+	for j := range with.Coefficients {
+		if !closeTo(with.Coefficients[j], without.Coefficients[j], 1e-12, 0) {
+			t.Errorf("coefficient %d: %v with an excluded point, %v without it", j, with.Coefficients[j], without.Coefficients[j])
+		}
+	}
+	p := with.Points[9]
+	if with.N != 15 || p.Weight != 0 || !p.Excluded || !p.HasBackCalc || !p.HasRelativeError || math.Abs(p.RelativeErrorPct) < 40 {
+		t.Errorf("N %d, excluded point %+v", with.N, p)
+	}
+	if got, want := len(with.Cautions), 3; got != want || !strings.Contains(strings.Join(with.Cautions, " "), "qualified person") {
+		t.Errorf("cautions %q", with.Cautions)
+	}
+}

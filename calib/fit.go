@@ -10,6 +10,7 @@ import (
 // dataset holds the fitted (non-excluded) readings and their levels.
 type dataset struct {
 	idx    []int // index in the caller's points of each fitted reading
+	order  []int // fitted readings by increasing x (stable); levels' idx are runs of it
 	x, y   []float64
 	levels []level // by increasing x
 }
@@ -120,7 +121,7 @@ func resolveOptions(opt Options) (Options, error) {
 		return opt, inputErr("options.confidence", "must lie in (0, 1), got %v", opt.Confidence)
 	}
 	if opt.Policy.isZero() {
-		opt.Policy = DefaultPolicy()
+		opt.Policy = defaultPolicy
 	}
 	if err := opt.Policy.validate(); err != nil {
 		return opt, err
@@ -133,24 +134,44 @@ func prepare(points []Point, model Model) (*dataset, error) {
 	if len(points) == 0 {
 		return nil, inputErr("points", "no calibration points")
 	}
-	labels := make(map[string]float64, len(points))
-	d := &dataset{}
+	n0 := len(points)
+	// The concentration of each level label: a short list searched
+	// linearly for a typical run (backed by a stack array), a map for long
+	// ones.
+	var labelBuf [64]labelX
+	labels := labelBuf[:0]
+	var labelMap map[string]float64
+	if n0 > len(labelBuf) {
+		labelMap = make(map[string]float64, n0)
+	}
+	buf := make([]float64, 2*n0)
+	ints := make([]int, 2*n0) // idx, then the level order of groupLevels
+	d := &dataset{idx: ints[:0:n0], order: ints[n0 : 2*n0 : 2*n0], x: buf[:0:n0], y: buf[n0 : n0 : 2*n0]}
 	for i, p := range points {
-		f := "points[" + strconv.Itoa(i) + "]"
+		// field names the point for an error; built only when one is reported.
+		field := func(sub string) string { return "points[" + strconv.Itoa(i) + "]" + sub }
 		if math.IsNaN(p.X) || math.IsInf(p.X, 0) {
-			return nil, inputErr(f+".x", "concentration is not a finite number")
+			return nil, inputErr(field(".x"), "concentration is not a finite number")
 		}
 		if p.X < 0 {
-			return nil, inputErr(f+".x", "negative concentration %v", p.X)
+			return nil, inputErr(field(".x"), "negative concentration %v", p.X)
 		}
 		if math.IsNaN(p.Y) || math.IsInf(p.Y, 0) {
-			return nil, inputErr(f+".y", "response is not a finite number")
+			return nil, inputErr(field(".y"), "response is not a finite number")
 		}
 		if p.Level != "" {
-			if x, ok := labels[p.Level]; ok && x != p.X {
-				return nil, inputErr(f+".level", "level %q has readings at two concentrations (%v and %v)", p.Level, x, p.X)
+			var x float64
+			seen := false
+			if labelMap != nil {
+				if x, seen = labelMap[p.Level]; !seen {
+					labelMap[p.Level] = p.X
+				}
+			} else {
+				labels, x, seen = findLabel(labels, p.Level, p.X)
 			}
-			labels[p.Level] = p.X
+			if seen && x != p.X {
+				return nil, inputErr(field(".level"), "level %q has readings at two concentrations (%v and %v)", p.Level, x, p.X)
+			}
 		}
 		if !p.Excluded {
 			d.idx = append(d.idx, i)
@@ -189,15 +210,57 @@ func prepare(points []Point, model Model) (*dataset, error) {
 	return d, nil
 }
 
+// labelX is a level label and its concentration.
+type labelX struct {
+	label string
+	x     float64
+}
+
+// findLabel returns the x of label in list and true if it is there, else
+// list with (label, x) appended and false. It takes and returns the slice,
+// so that a list backed by the caller's stack array stays there.
+func findLabel(list []labelX, label string, x float64) ([]labelX, float64, bool) {
+	// Readings of one level usually follow each other: try the last first.
+	if k := len(list) - 1; k >= 0 && list[k].label == label {
+		return list, list[k].x, true
+	}
+	for _, e := range list {
+		if e.label == label {
+			return list, e.x, true
+		}
+	}
+	return append(list, labelX{label, x}), x, false
+}
+
 // groupLevels groups the fitted readings by exact nominal concentration.
 func (d *dataset) groupLevels() {
-	order := make([]int, len(d.x))
+	order := d.order[:len(d.x)]
+	d.order = order
 	for i := range order {
 		order[i] = i
 	}
-	slices.SortStableFunc(order, func(a, b int) int { return cmp.Compare(d.x[a], d.x[b]) })
+	if len(order) <= 32 {
+		// Stable insertion sort by x: readings usually arrive in level
+		// order, so this is one pass; the result is the one stable sort gives.
+		for k := 1; k < len(order); k++ {
+			i, xi := order[k], d.x[order[k]]
+			j := k
+			for ; j > 0 && d.x[order[j-1]] > xi; j-- {
+				order[j] = order[j-1]
+			}
+			order[j] = i
+		}
+	} else {
+		slices.SortStableFunc(order, func(a, b int) int { return cmp.Compare(d.x[a], d.x[b]) })
+	}
+	nl := 0
+	for k, i := range order {
+		if k == 0 || d.x[i] != d.x[order[k-1]] {
+			nl++
+		}
+	}
 	// order is sorted by x, so each level's indices are a run of it.
-	d.levels = d.levels[:0]
+	d.levels = make([]level, 0, nl)
 	for k, i := range order {
 		if l := len(d.levels); l > 0 && d.levels[l-1].x == d.x[i] {
 			d.levels[l-1].idx = order[k-len(d.levels[l-1].idx) : k+1 : k+1]
@@ -287,6 +350,21 @@ func fitAuto(points []Point, d *dataset, opt Options) (*Report, error) {
 	}
 	scores[best].Chosen = true
 	return build(points, d, opt, bestPlan, bestRaw, bestRaw, scores)
+}
+
+// levelOf returns the index in d.levels of the level at concentration x,
+// which must be the x of a fitted reading.
+func (d *dataset) levelOf(x float64) int {
+	lo, hi := 0, len(d.levels)-1
+	for lo < hi {
+		m := int(uint(lo+hi) >> 1)
+		if d.levels[m].x < x {
+			lo = m + 1
+		} else {
+			hi = m
+		}
+	}
+	return lo
 }
 
 // unreplicated returns the index of the first level with a single reading,

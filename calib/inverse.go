@@ -225,7 +225,7 @@ func (r *Report) predictQuadratic(y0 float64, m int, t float64, pr *Prediction) 
 		// At the vertex the sensitivity vanishes: no finite SE or interval.
 		return x0, true
 	}
-	pr.StandardError = math.Sqrt(math.Max(v0, 0)) / math.Abs(e)
+	pr.StandardError = math.Sqrt(max(v0, 0)) / math.Abs(e)
 	if v0 <= 0 {
 		pr.Interval.Low, pr.Interval.High, pr.Interval.Bounded = x0, x0, true
 		return x0, true
@@ -236,7 +236,7 @@ func (r *Report) predictQuadratic(y0 float64, m int, t float64, pr *Prediction) 
 		d := y0 - (b0 + b1*x + b2*x*x)
 		return d*d - t*t*bandVar(x)
 	}
-	span := math.Max(r.Range.High-r.Range.Low, math.Abs(x0))
+	span := max(r.Range.High-r.Range.Low, math.Abs(x0))
 	if !(span > 0) {
 		span = 1
 	}

@@ -37,22 +37,24 @@ func computeLimits(r *Report, f lsq) Limits {
 	if r.Model != LinearOrigin {
 		rr = math.Sqrt(1 + f.xtwx[0])
 	}
-	t := studentT(0.95, r.DF)
-	l.CriticalValue = b0 + math.Copysign(t*s*rr, slope)
-	l.CriticalConc = t * s * rr / as
+	tq := studentT(0.95, r.DF)
+	l.CriticalValue = b0 + math.Copysign(tq*s*rr, slope)
+	l.CriticalConc = tq * s * rr / as
 	l.DetectionLimit = 2 * l.CriticalConc
-	l.Detail = "LOD = 3.3·σ/S and LOQ = 10·σ/S (ICH Q2(R2)) with σ = residual SD " + fmtG(s) + " and S = " + fmtG(slope)
+	t := newText()
+	defer t.free()
+	t.s("LOD = 3.3·σ/S and LOQ = 10·σ/S (ICH Q2(R2)) with σ = residual SD ").g(s).s(" and S = ").g(slope)
 	if r.Model == Quadratic {
-		l.Detail += " (the quadratic's sensitivity b1 + 2·b2·x at the lowest standard x = " + fmtG(r.Range.Low) + ")"
+		t.s(" (the quadratic's sensitivity b1 + 2·b2·x at the lowest standard x = ").g(r.Range.Low).s(")")
 	}
-	l.Detail += ". Critical value y_c, x_c and minimum detectable x_d ≈ 2·x_c by ISO 11843-2 for one reading of the unknown, α = β = 0.05, t(0.95; " +
-		itoa(r.DF) + ") = " + fmtG(t) + ", assuming a constant response SD"
+	t.s(". Critical value y_c, x_c and minimum detectable x_d ≈ 2·x_c by ISO 11843-2 for one reading of the unknown, α = β = 0.05, t(0.95; ").
+		i(r.DF).s(") = ").gc(tq).s(", assuming a constant response SD")
 	if r.Weighting != WeightNone {
-		l.Detail += "; with " + string(r.Weighting) + " weighting σ is the SD of a reading of unit weight on the Σw = n scale, so these limits are approximations"
+		t.s("; with ").s(string(r.Weighting)).s(" weighting σ is the SD of a reading of unit weight on the Σw = n scale, so these limits are approximations")
 	}
 	if r.Model == LinearOrigin {
-		l.Detail += "; the origin model takes the blank response as exactly 0"
+		t.s("; the origin model takes the blank response as exactly 0")
 	}
-	l.Detail += "."
+	l.Detail = t.s(".").str()
 	return l
 }

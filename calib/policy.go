@@ -58,6 +58,10 @@ func DefaultPolicy() Policy {
 	}
 }
 
+// defaultPolicy is DefaultPolicy for internal use: Fit only reads its
+// Mandatory list, so one copy is shared rather than allocated per fit.
+var defaultPolicy = DefaultPolicy()
+
 // checkNames lists every check in the order it is reported.
 var checkNames = []string{
 	CheckMinLevels, CheckMandel, CheckLackOfFit, CheckHomoscedasticity,

@@ -2,7 +2,7 @@ package calib
 
 import (
 	"math"
-	"sync"
+	"sync/atomic"
 
 	"gonum.org/v1/gonum/stat/distuv"
 )
@@ -19,8 +19,40 @@ type quantileKey struct {
 // quantiles caches Student t and F quantiles by (p, df). The inverse
 // incomplete beta function behind both costs microseconds, far more than a
 // whole calibration fit, and the same few (p, df) pairs recur in every run.
-// sync.Map suits a read-mostly cache shared by concurrent requests.
-var quantiles sync.Map // quantileKey → float64
+// It is a four-way set-associative table of atomic pointers to immutable
+// entries: a lookup is a few loads, and concurrent requests may share it.
+var quantiles [256]atomic.Pointer[quantileEntry]
+
+type quantileEntry struct {
+	key quantileKey
+	q   float64
+}
+
+// cachedQuantile returns the quantile of k, computing it with compute on a
+// miss.
+func cachedQuantile(k quantileKey, compute func() float64) float64 {
+	h := math.Float64bits(k.p) ^ uint64(k.kind)<<56 ^ uint64(k.d1)*0x100000001b3 ^ uint64(k.d2)*0xc2b2ae3d27d4eb4f
+	set := quantiles[((h*0x9e3779b97f4a7c15)>>58)*4:][:4]
+	free := -1
+	for i := range set {
+		e := set[i].Load()
+		if e == nil {
+			if free < 0 {
+				free = i
+			}
+			continue
+		}
+		if e.key == k {
+			return e.q
+		}
+	}
+	if free < 0 {
+		free = int(h>>7) & 3 // a full set: replace one, chosen by the key
+	}
+	e := &quantileEntry{key: k, q: compute()}
+	set[free].Store(e)
+	return e.q
+}
 
 // studentT returns t(p; df), the p-quantile of Student's t with df degrees of
 // freedom.
@@ -28,30 +60,24 @@ var quantiles sync.Map // quantileKey → float64
 // Precondition: 0 < p < 1, df ≥ 1. gonum's StudentsT needs Sigma: 1, or its
 // Quantile returns 0 (FIELD-NOTES §1).
 func studentT(p float64, df int) float64 {
-	k := quantileKey{kind: 't', p: p, d1: df}
-	if v, ok := quantiles.Load(k); ok {
-		return v.(float64)
-	}
-	q := distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(df)}.Quantile(p)
-	if math.IsNaN(q) || math.IsInf(q, 0) {
-		q = 0
-	}
-	quantiles.Store(k, q)
-	return q
+	return cachedQuantile(quantileKey{kind: 't', p: p, d1: df}, func() float64 {
+		q := distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(df)}.Quantile(p)
+		if math.IsNaN(q) || math.IsInf(q, 0) {
+			q = 0
+		}
+		return q
+	})
 }
 
 // fQuantile returns F(p; d1, d2), the p-quantile of Fisher's F distribution.
 //
 // Precondition: 0 < p < 1, d1, d2 ≥ 1.
 func fQuantile(p float64, d1, d2 int) float64 {
-	k := quantileKey{kind: 'f', p: p, d1: d1, d2: d2}
-	if v, ok := quantiles.Load(k); ok {
-		return v.(float64)
-	}
-	q := distuv.F{D1: float64(d1), D2: float64(d2)}.Quantile(p)
-	if math.IsNaN(q) || math.IsInf(q, 0) {
-		q = 0
-	}
-	quantiles.Store(k, q)
-	return q
+	return cachedQuantile(quantileKey{kind: 'f', p: p, d1: d1, d2: d2}, func() float64 {
+		q := distuv.F{D1: float64(d1), D2: float64(d2)}.Quantile(p)
+		if math.IsNaN(q) || math.IsInf(q, 0) {
+			q = 0
+		}
+		return q
+	})
 }

@@ -3,6 +3,8 @@ package calib
 import (
 	"math"
 	"strconv"
+	"sync"
+	"sync/atomic"
 )
 
 // cautions are carried by every Report and every Prediction.
@@ -18,6 +20,24 @@ func Cautions() []string {
 	return append([]string(nil), cautions...)
 }
 
+// weightConvention returns the Report's WeightConvention for n readings;
+// the texts of short runs are kept, as the same n recurs run after run.
+func weightConvention(n int) string {
+	if n < len(conventions) {
+		if s := conventions[n].Load(); s != nil {
+			return *s
+		}
+	}
+	s := "weights normalised to sum to n = " + strconv.Itoa(n) +
+		" (Σw = n) before residual_sd is computed (Miller & Miller §5.10); an unknown's weight w0 is the scheme's raw weight times weight_scale, on the same scale"
+	if n < len(conventions) {
+		conventions[n].Store(&s)
+	}
+	return s
+}
+
+var conventions [128]atomic.Pointer[string]
+
 // build fits the dataset with the given raw weights (normalised here to
 // Σw = n) and assembles the full Report: coefficients, diagnostics, checks,
 // limits and verdict. planRaw are the raw weights the plan itself gives the
@@ -27,36 +47,38 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	ratio := raw[0] / planRaw[0] // raw and planRaw may be the same slice
 	w := raw
 	wscale := normalise(w) * ratio
-	des, f, err := fitDesign(opt.Model, d, w)
+	var des design
+	f, err := fitDesign(&des, opt.Model, d, w)
 	if err != nil {
 		return nil, err
 	}
+	defer des.release()
 	n, p := len(d.x), f.p
 	r := &Report{
 		Model:              opt.Model,
 		Weighting:          wp.scheme,
 		WeightingRequested: opt.Weighting,
 		WeightCandidates:   scores,
-		WeightConvention: "weights normalised to sum to n = " + strconv.Itoa(n) +
-			" (Σw = n) before residual_sd is computed (Miller & Miller §5.10); an unknown's weight w0 is the scheme's raw weight times weight_scale, on the same scale",
-		ZeroHandling: wp.zero,
-		WeightScale:  wscale,
-		WeightFloor:  wp.floor,
-		Variance:     wp.vm,
-		ResidualSD:   f.s,
-		DF:           f.df,
-		RSquared:     f.r2,
-		N:            n,
-		Levels:       len(d.levels),
-		Confidence:   opt.Confidence,
-		Range:        Range{Low: d.levels[0].x, High: d.levels[len(d.levels)-1].x},
-		Cautions:     Cautions(),
-		Engine:       EngineVersion,
+		WeightConvention:   weightConvention(n),
+		ZeroHandling:       wp.zero,
+		WeightScale:        wscale,
+		WeightFloor:        wp.floor,
+		Variance:           wp.vm,
+		ResidualSD:         f.s,
+		DF:                 f.df,
+		RSquared:           f.r2,
+		N:                  n,
+		Levels:             len(d.levels),
+		Confidence:         opt.Confidence,
+		Range:              Range{Low: d.levels[0].x, High: d.levels[len(d.levels)-1].x},
+		Cautions:           Cautions(),
+		Engine:             EngineVersion,
 	}
 	r.Coefficients = f.beta
-	r.StandardErrors = make([]float64, p)
+	seCov := make([]float64, p+p*p)
+	r.StandardErrors = seCov[:p:p]
 	r.Covariance = make([][]float64, p)
-	covBuf := make([]float64, p*p)
+	covBuf := seCov[p:]
 	s2 := f.s * f.s
 	for j := 0; j < p; j++ {
 		r.Covariance[j] = covBuf[j*p : (j+1)*p : (j+1)*p]
@@ -102,7 +124,7 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		}
 	}
 	r.Limits = computeLimits(r, f)
-	r.Checks = computeChecks(r, d, des, f, w, opt.Policy)
+	r.Checks = computeChecks(r, d, &des, f, w, opt.Policy)
 	r.Verdict = verdict(r.Checks)
 	if !r.finite() {
 		return nil, inputErr("points", "values are outside the numerically usable range")
@@ -115,27 +137,34 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 // (columns [1, x, x²], or [x, 1, x²] for the origin model), and fits the
 // model from it. If the extra columns are not usable (x² overflows), the
 // model's own columns are factorised and those checks are not computed.
-func fitDesign(m Model, d *dataset, w []float64) (*design, lsq, error) {
+// The caller releases des when it no longer needs it (on success only).
+func fitDesign(des *design, m Model, d *dataset, w []float64) (lsq, error) {
 	n, k := len(d.x), len(d.levels)
-	ext := powers(m)
+	var ext []int
 	switch {
 	case m == Quadratic:
+		ext = powers(m)
 	case n >= 4 && k >= 3 && m == Linear:
 		ext = []int{0, 1, 2}
 	case n >= 4 && k >= 3:
 		ext = []int{1, 0, 2}
 	case n >= 3 && m == LinearOrigin:
 		ext = []int{1, 0}
+	default:
+		ext = powers(m)
 	}
-	des, err := newDesign(ext, d.x, d.y, w)
+	err := des.init(ext, d.x, d.y, w)
 	if err != nil && len(ext) > nParams(m) {
-		des, err = newDesign(powers(m), d.x, d.y, w)
+		err = des.init(powers(m), d.x, d.y, w)
 	}
 	if err != nil {
-		return nil, lsq{}, err
+		return lsq{}, err
 	}
 	f, err := des.fit(m)
-	return des, f, err
+	if err != nil {
+		des.release()
+	}
+	return f, err
 }
 
 // backCalc reads a point's concentration back from the curve and sets its
@@ -260,46 +289,48 @@ func FailedReport(points []Point, opt Options, cause error) *Report {
 
 // finite reports whether every float in the report is finite.
 func (r *Report) finite() bool {
-	ok := func(v ...float64) bool {
-		for _, x := range v {
-			if math.IsNaN(x) || math.IsInf(x, 0) {
-				return false
-			}
-		}
-		return true
-	}
-	if !ok(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
+	if !finite(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
 		r.WeightScale, r.WeightFloor, r.Variance.C0, r.Variance.C1, r.Variance.Floor,
 		r.Limits.LOD, r.Limits.LOQ, r.Limits.CriticalValue, r.Limits.CriticalConc, r.Limits.DetectionLimit,
 		r.Range.Low, r.Range.High) {
 		return false
 	}
-	if !ok(r.Coefficients...) || !ok(r.StandardErrors...) {
+	if !finite(r.Coefficients...) || !finite(r.StandardErrors...) {
 		return false
 	}
 	for _, row := range r.Covariance {
-		if !ok(row...) {
+		if !finite(row...) {
 			return false
 		}
 	}
 	for _, c := range r.WeightCandidates {
-		if !ok(c.SumAbsRE) {
+		if !finite(c.SumAbsRE) {
 			return false
 		}
 	}
 	for i := range r.Points {
 		p := &r.Points[i]
-		if !ok(p.X, p.Y, p.Weight, p.Fitted, p.Residual, p.WeightedResidual, p.Leverage,
+		if !finite(p.X, p.Y, p.Weight, p.Fitted, p.Residual, p.WeightedResidual, p.Leverage,
 			p.Studentized, p.CooksDistance, p.BackCalculated, p.RelativeErrorPct) {
 			return false
 		}
 	}
 	for _, c := range r.Checks {
-		if !ok(c.Statistic, c.Limit) {
+		if !finite(c.Statistic, c.Limit) {
 			return false
 		}
 	}
 	return true
+}
+
+// finite reports whether every v is neither NaN nor ±Inf (v − v is NaN for
+// both, 0 for every finite v).
+func finite(v ...float64) bool {
+	var s float64
+	for _, x := range v {
+		s += x - x
+	}
+	return s == 0
 }
 
 // fmtG formats v with six significant digits for Detail texts.
@@ -307,12 +338,87 @@ func fmtG(v float64) string {
 	return strconv.FormatFloat(v, 'g', 6, 64)
 }
 
-// fmtG10 formats v with ten significant digits.
-func fmtG10(v float64) string {
-	return strconv.FormatFloat(v, 'g', 10, 64)
-}
-
 // itoa formats an integer for Detail texts.
 func itoa(i int) string {
 	return strconv.Itoa(i)
 }
+
+// text builds Detail texts with one allocation for the finished string
+// rather than one per number and per concatenation.
+type text struct{ b []byte }
+
+// textPool recycles text buffers across checks and fits.
+var textPool = sync.Pool{New: func() any { return &text{b: make([]byte, 0, 512)} }}
+
+// newText returns an empty text from the pool; free returns it.
+func newText() *text {
+	t := textPool.Get().(*text)
+	t.b = t.b[:0]
+	return t
+}
+
+func (t *text) free() { textPool.Put(t) }
+
+func (t *text) s(v string) *text { t.b = append(t.b, v...); return t }
+
+// g appends v with six significant digits.
+func (t *text) g(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 6, 64); return t }
+
+// gc appends v exactly as g does, from a small cache: for the values that
+// recur run after run (policy thresholds and t and F quantiles), whose
+// formatting would otherwise cost more than the arithmetic of the check.
+func (t *text) gc(v float64) *text { t.b = append(t.b, cachedG(v)...); return t }
+
+// gEntry is one formatted value of gCache.
+type gEntry struct {
+	bits uint64
+	s    string
+}
+
+// gCache caches fmtG by the value's bits, four-way set associative (so a
+// few colliding values do not evict each other run after run). Entries are
+// replaced whole through atomic pointers, so concurrent fits may share it.
+var gCache [1024]atomic.Pointer[gEntry]
+
+// cachedG returns fmtG(v), from gCache when it holds v.
+func cachedG(v float64) string {
+	b := math.Float64bits(v)
+	set := gCache[((b*0x9e3779b97f4a7c15)>>56)*4:][:4]
+	free := -1
+	for i := range set {
+		e := set[i].Load()
+		if e == nil {
+			if free < 0 {
+				free = i
+			}
+			continue
+		}
+		if e.bits == b {
+			return e.s
+		}
+	}
+	if free < 0 {
+		free = int(b>>52) & 3 // a full set: replace one, chosen by the value
+	}
+	e := &gEntry{bits: b, s: fmtG(v)}
+	set[free].Store(e)
+	return e.s
+}
+
+// g10 appends v with ten significant digits.
+func (t *text) g10(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 10, 64); return t }
+
+func (t *text) i(v int) *text { t.b = strconv.AppendInt(t.b, int64(v), 10); return t }
+
+// point names a reading for QA staff: its level label, index and x.
+func (t *text) point(p *PointResult, i int) *text {
+	if p.Level != "" {
+		return t.s(p.Level).s(" (reading ").i(i).s(", x = ").g(p.X).s(")")
+	}
+	return t.s("reading ").i(i).s(" (x = ").g(p.X).s(")")
+}
+
+// add appends the text of u.
+func (t *text) add(u *text) *text { t.b = append(t.b, u.b...); return t }
+
+func (t *text) str() string { return string(t.b) }

@@ -62,7 +62,7 @@ const (
 	FlagBelowLOD     = "below_lod"          // below the ICH Q2 detection limit
 	FlagBelowLOQ     = "below_loq"          // below the ICH Q2 quantification limit
 	FlagNegative     = "negative"           // negative point estimate
-	FlagNoRoot       = "no_root_in_range"   // quadratic: no root inside the calibrated range
+	FlagNoRoot       = "no_root_in_range"   // no root on the calibrated (monotone) branch of the curve
 	FlagUnbounded    = "unbounded_interval" // Fieller g ≥ 1 or band does not close: no finite interval
 	FlagExtrapolated = "extrapolated"       // set together with below_range or above_range
 )

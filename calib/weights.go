@@ -100,8 +100,10 @@ func planWeights(scheme Weighting, d *dataset) (weightPlan, []float64, error) {
 			}
 			raw[i] = relWeight(x, wp.floor, k)
 		}
-		wp.zero = "a zero concentration is weighted as the smallest non-zero concentration among the fitted standards (" +
-			fmtG(wp.floor) + "); " + strconv.Itoa(zeros) + " fitted reading(s) at zero; no standard is dropped"
+		t := newText()
+		wp.zero = t.s("a zero concentration is weighted as the smallest non-zero concentration among the fitted standards (").
+			g(wp.floor).s("); ").i(zeros).s(" fitted reading(s) at zero; no standard is dropped").str()
+		t.free()
 		return wp, raw, nil
 	case WeightInvY, WeightInvY2:
 		wp.floor = smallestNonZeroAbs(d.y)
@@ -116,8 +118,10 @@ func planWeights(scheme Weighting, d *dataset) (weightPlan, []float64, error) {
 			}
 			raw[i] = relWeight(y, wp.floor, k)
 		}
-		wp.zero = "weights use |y|; a zero response is weighted as the smallest non-zero |response| among the fitted standards (" +
-			fmtG(wp.floor) + "); " + strconv.Itoa(zeros) + " fitted reading(s) with zero response; no standard is dropped"
+		t := newText()
+		wp.zero = t.s("weights use |y|; a zero response is weighted as the smallest non-zero |response| among the fitted standards (").
+			g(wp.floor).s("); ").i(zeros).s(" fitted reading(s) with zero response; no standard is dropped").str()
+		t.free()
 		return wp, raw, nil
 	case WeightInvS2:
 		return planInvS2(d, raw)

@@ -100,6 +100,7 @@ CREATE TABLE methods (
     acceptance jsonb            NOT NULL CHECK (jsonb_typeof(acceptance) = 'object'),
     created_at timestamptz      NOT NULL DEFAULT now(),
     created_by text             NOT NULL,
+    description text            NOT NULL DEFAULT '' CHECK (length(description) <= 4000),
     PRIMARY KEY (name, revision)
 );
 

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"github.com/jackc/puddle/v2"
 	"io"
 	"net"
 	"strings"
@@ -20,16 +21,6 @@ const (
 	codeUniqueViolation     = "23505"
 	codeForeignKeyViolation = "23503"
 )
-
-// constraintOf names the constraint a PostgreSQL error is about, "" when
-// none (a unique violation on a primary key names the key's index).
-func constraintOf(err error) string {
-	var pgErr *pgconn.PgError
-	if errors.As(err, &pgErr) {
-		return pgErr.ConstraintName
-	}
-	return ""
-}
 
 // classify wraps err with the operation that failed. A database that cannot be
 // reached (refused or broken connection, shutdown, timeout, too many
@@ -53,8 +44,8 @@ func classify(op string, err error) error {
 // unavailable reports whether err says the database could not be reached or
 // could not serve the request now, as opposed to refusing it.
 func unavailable(err error) bool {
-	if errors.Is(err, context.DeadlineExceeded) {
-		return true
+	if errors.Is(err, context.DeadlineExceeded) || errors.Is(err, puddle.ErrClosedPool) {
+		return true // a closed pool: the service is shutting down
 	}
 	var pgErr *pgconn.PgError
 	if errors.As(err, &pgErr) {

@@ -1,7 +1,9 @@
 package store
 
 import (
+	"bytes"
 	"context"
+	"crypto/sha256"
 	"encoding/base64"
 	"encoding/binary"
 	"encoding/json"
@@ -156,26 +158,42 @@ type CurvePage struct {
 	NextCursor string // "" on the last page
 }
 
-// encodeCursor makes the opaque cursor after (acquiredAt, id): base64url of
-// the time in Unix microseconds (PostgreSQL's precision) and the 16 id bytes.
-func encodeCursor(acquiredAt time.Time, id string) (string, error) {
+// encodeCursor makes the opaque cursor after (acquiredAt, id) for the query
+// f: base64url of the time in microseconds (8 bytes), the id (16 bytes) and
+// the first 8 bytes of a SHA-256 of f's filters, so that a cursor handed back
+// with other filters is refused instead of silently paging another query.
+func encodeCursor(acquiredAt time.Time, id string, f CurveFilter) (string, error) {
 	u, err := uuid.Parse(id)
 	if err != nil {
 		return "", fmt.Errorf("store: cursor id: %w", err)
 	}
-	b := make([]byte, 8, 24)
+	b := make([]byte, 8, 32)
 	binary.BigEndian.PutUint64(b, uint64(acquiredAt.UnixMicro()))
 	b = append(b, u[:]...)
+	b = append(b, filterDigest(f)...)
 	return base64.RawURLEncoding.EncodeToString(b), nil
 }
 
-func decodeCursor(s string) (time.Time, string, error) {
+func decodeCursor(s string, f CurveFilter) (time.Time, string, error) {
 	b, err := base64.RawURLEncoding.DecodeString(s)
-	if err != nil || len(b) != 24 {
+	if err != nil || len(b) != 32 {
 		return time.Time{}, "", FieldError("/cursor", "cursor is not one this service issued")
 	}
-	u, _ := uuid.FromBytes(b[8:])
+	if !bytes.Equal(b[24:], filterDigest(f)) {
+		return time.Time{}, "", FieldError("/cursor", "cursor was issued for other filters; send the same filters as the first page, or start again without a cursor")
+	}
+	u, _ := uuid.FromBytes(b[8:24])
 	return time.UnixMicro(int64(binary.BigEndian.Uint64(b[:8]))).UTC(), u.String(), nil
+}
+
+// filterDigest identifies the filters of a history query (not its page size).
+func filterDigest(f CurveFilter) []byte {
+	h := sha256.New()
+	for _, part := range []string{f.Instrument, f.Analyte, f.Method, f.Status, f.Verdict,
+		f.From.UTC().Format(time.RFC3339Nano), f.To.UTC().Format(time.RFC3339Nano)} {
+		h.Write([]byte(strconv.Quote(part)))
+	}
+	return h.Sum(nil)[:8]
 }
 
 // ListCurves returns curves newest first by (acquired_at, id), one page at a
@@ -201,7 +219,7 @@ func (db *DB) ListCurves(ctx context.Context, f CurveFilter) (*CurvePage, error)
 	if len(curves) > limit {
 		page.Curves = curves[:limit]
 		last := page.Curves[limit-1]
-		if page.NextCursor, err = encodeCursor(last.AcquiredAt, last.ID); err != nil {
+		if page.NextCursor, err = encodeCursor(last.AcquiredAt, last.ID, f); err != nil {
 			return nil, err
 		}
 	}
@@ -305,7 +323,7 @@ func curveQuery(f CurveFilter) (sql string, args []any, limit int, err error) {
 		add("acquired_at < ?", f.To)
 	}
 	if f.Cursor != "" {
-		at, id, err := decodeCursor(f.Cursor)
+		at, id, err := decodeCursor(f.Cursor, f)
 		if err != nil {
 			return "", nil, 0, err
 		}
@@ -369,9 +387,18 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 			}
 			return classify("update curve status", err)
 		}
-		return writeAudit(ctx, tx, actor, ActionCurveReview, entityCurve, id, map[string]any{
+		if err := writeAudit(ctx, tx, actor, ActionCurveReview, entityCurve, id, map[string]any{
 			"decision": decision, "reason": reason, "from": current, "to": status, "verdict": verdict,
-		})
+		}); err != nil {
+			return err
+		}
+		// The curve's results move with its review (provisional to
+		// releasable or withheld), in this transaction.
+		events := &eventBuffer{}
+		if _, err := refreshCurveResults(ctx, tx, id, CauseReview, events); err != nil {
+			return err
+		}
+		return flushEvents(ctx, tx, events)
 	})
 	if err != nil {
 		return nil, classify("review curve "+id, err)

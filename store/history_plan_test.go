@@ -47,6 +47,15 @@ FROM generate_series(1, 100000) g`, created.ID, m.Name, baseTime)
 		t.Fatalf("ListCurves for a cursor: %v (cursor %q)", err, deep.NextCursor)
 	}
 
+	// Cursors are bound to their filters: the unfiltered history needs its own.
+	deepAll, err := db.ListCurves(ctx, store.CurveFilter{Limit: 500})
+	if err != nil || deepAll.NextCursor == "" {
+		t.Fatalf("ListCurves for an unfiltered cursor: %v (cursor %q)", err, deepAll.NextCursor)
+	}
+	if _, err := db.ListCurves(ctx, store.CurveFilter{Cursor: deep.NextCursor}); store.KindOf(err) != store.KindInvalid {
+		t.Errorf("a cursor issued for ic-7 nitrite was accepted without those filters: err %v", err)
+	}
+
 	tests := []struct {
 		name      string
 		filter    store.CurveFilter
@@ -58,7 +67,7 @@ FROM generate_series(1, 100000) g`, created.ID, m.Name, baseTime)
 		{"instrument, analyte and window", store.CurveFilter{Instrument: "ic-7", Analyte: "nitrite",
 			From: baseTime.Add(-30 * 24 * time.Hour), To: baseTime.Add(-20 * 24 * time.Hour)}, "curves_history"},
 		{"everything, page 1", store.CurveFilter{}, "curves_recent"},
-		{"everything, deep cursor", store.CurveFilter{Cursor: deep.NextCursor}, "curves_recent"},
+		{"everything, deep cursor", store.CurveFilter{Cursor: deepAll.NextCursor}, "curves_recent"},
 		{"review queue", store.CurveFilter{Status: store.StatusPendingReview}, "curves_pending"},
 	}
 	for _, tt := range tests {

@@ -14,17 +14,15 @@ import (
 // token_id, key): keys are chosen by clients, and two clients choosing the
 // same key must neither collide nor read each other's response.
 const (
-	// sqlClaimKey claims a key for a new run, first in the run's
-	// transaction. A concurrent transaction holding the same key makes it
-	// wait until that one ends; if it committed, the insert fails on the
-	// primary key (constraintIdempotencyKey), the run's transaction rolls
-	// back and the caller replays the stored response.
+	// sqlClaimKey claims a key for a new run. ON CONFLICT waits for a
+	// concurrent transaction holding the same key to finish; if it
+	// committed, no row is returned and the caller replays its response.
 	sqlClaimKey = `
 INSERT INTO idempotency_keys (token_id, key, request_hash, run_id, response_status, response_body)
-VALUES ($1, $2, $3, $4, 201, $5)`
-	// constraintIdempotencyKey is the primary key of idempotency_keys.
-	constraintIdempotencyKey = "idempotency_keys_pkey"
-	sqlSelectKey             = `SELECT request_hash, response_body FROM idempotency_keys WHERE token_id = $1 AND key = $2`
+VALUES ($1, $2, $3, $4, 201, $5)
+ON CONFLICT (token_id, key) DO NOTHING
+RETURNING true`
+	sqlSelectKey = `SELECT request_hash, response_body FROM idempotency_keys WHERE token_id = $1 AND key = $2`
 )
 
 // errKeyReused is the refusal of a key used before with another body.

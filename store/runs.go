@@ -36,6 +36,9 @@ type Sample struct {
 	Analyte   string    `json:"analyte"`
 	Responses []float64 `json:"responses"`
 	Dilution  float64   `json:"dilution"` // 0 in RunInput means 1
+	// AcquiredAt is when a sample posted after its run was acquired; nil for
+	// a sample posted with its run, which was acquired with it.
+	AcquiredAt *time.Time `json:"acquired_at,omitempty"`
 }
 
 // RunInput is a run as the api received and validated it.
@@ -277,8 +280,8 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10)`
 INSERT INTO readings (run_id, analyte, level, replicate, standard, concentration, response)
 SELECT $1, * FROM unnest($2::text[], $3::text[], $4::int[], $5::int[], $6::float8[], $7::float8[])`
 	sqlInsertSample = `
-INSERT INTO run_samples (run_id, position, sample_id, analyte, responses, dilution)
-VALUES ($1, $2, $3, $4, $5, $6)`
+INSERT INTO run_samples (run_id, position, sample_id, analyte, responses, dilution, acquired_at)
+VALUES ($1, $2, $3, $4, $5, $6, $7)`
 	sqlInsertCurve = `
 INSERT INTO curves (id, run_id, method, method_revision, instrument, analyte, unit, model, weighting, verdict,
                     engine_version, report, acquired_at, created_by, slope, intercept, residual_sd, r_squared, lod,
@@ -288,9 +291,7 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 
 // CreateRun stores a run, its readings and samples, its fitted curves (each
 // pending review) and their audit rows in one transaction, and returns the
-// ids it assigned. The whole write is one pgx batch, which PostgreSQL runs as
-// one implicit transaction (the batch ends with a single Sync): one round
-// trip, commit included.
+// ids it assigned. The run's rows go to the database in one batch.
 //
 // With an IdempotencyKey the key is claimed first, in the same transaction:
 // a concurrent request with the same key (and token) waits for this one to
@@ -329,12 +330,47 @@ func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (
 		return nil, fmt.Errorf("store: marshal run payload: %w", err)
 	}
 	var replay *RunCreated
-	for attempt := 1; ; attempt++ {
-		replay, err = db.sendRun(ctx, &in, runID, body, payload, prepared)
-		if err == nil || !retryable(err) || attempt == maxTxAttempts {
-			break
+	err = db.inTx(ctx, func(tx pgx.Tx) error {
+		replay = nil
+		if in.IdempotencyKey != "" {
+			var claimed bool
+			err := tx.QueryRow(ctx, sqlClaimKey, in.TokenID, in.IdempotencyKey, in.RequestHash, runID, body).Scan(&claimed)
+			if errors.Is(err, pgx.ErrNoRows) {
+				// Someone holds the key and has committed: replay or refuse.
+				replay, err = storedRun(ctx, tx, in.TokenID, in.IdempotencyKey, in.RequestHash)
+				if KindOf(err) == KindNotFound {
+					return fmt.Errorf("store: idempotency key %q vanished while claimed", in.IdempotencyKey)
+				}
+				return err
+			}
+			if err != nil {
+				return classify("claim idempotency key", err)
+			}
 		}
-	}
+		// A batch is built per attempt: inTx may run this function again.
+		batch, err := runBatch(&in, runID, payload, prepared)
+		if err != nil {
+			return err
+		}
+		if err := tx.SendBatch(ctx, batch).Close(); err != nil {
+			if pgCode(err) == codeForeignKeyViolation {
+				return &Error{Kind: KindInvalid, Field: "/method",
+					Message: fmt.Sprintf("method %q has no revision %d", in.Method, in.MethodRevision), Err: err}
+			}
+			if pgCode(err) == codeUniqueViolation {
+				return &Error{Kind: KindInvalid, Field: "/samples",
+					Message: "a sample id appears twice for one analyte; sample ids are unique per analyte within a run", Err: err}
+			}
+			return classify("insert run "+runID, err)
+		}
+		// Every sample is quantified against its analyte's curve now, in the
+		// transaction that stores it.
+		events := &eventBuffer{}
+		if err := insertResults(ctx, tx, runID, runResults(&in, prepared), in.Actor, CauseRunCreate, events); err != nil {
+			return err
+		}
+		return flushEvents(ctx, tx, events)
+	})
 	if err != nil {
 		return nil, classify("create run", err)
 	}
@@ -344,45 +380,14 @@ func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (
 	return created, nil
 }
 
-// sendRun writes the run in one batch. When the claim of the idempotency key
-// meets a key another request committed, the whole batch rolls back and the
-// stored response is replayed (or refused, for another body).
-func (db *DB) sendRun(ctx context.Context, in *RunInput, runID string, body, payload []byte, prepared []preparedCurve) (*RunCreated, error) {
-	// A batch is built per attempt: a retried batch is sent again whole.
-	batch, err := runBatch(in, runID, body, payload, prepared)
-	if err != nil {
-		return nil, err
-	}
-	err = db.Pool.SendBatch(ctx, batch).Close()
-	switch {
-	case err == nil:
-		return nil, nil
-	case in.IdempotencyKey != "" && pgCode(err) == codeUniqueViolation && constraintOf(err) == constraintIdempotencyKey:
-		// Someone holds the key and has committed: replay or refuse.
-		replay, err := storedRun(ctx, db.Pool, in.TokenID, in.IdempotencyKey, in.RequestHash)
-		if KindOf(err) == KindNotFound {
-			return nil, fmt.Errorf("store: idempotency key %q vanished while claimed", in.IdempotencyKey)
-		}
-		return replay, err
-	case pgCode(err) == codeForeignKeyViolation:
-		return nil, &Error{Kind: KindInvalid, Field: "/method",
-			Message: fmt.Sprintf("method %q has no revision %d", in.Method, in.MethodRevision), Err: err}
-	}
-	return nil, fmt.Errorf("store: insert run %s: %w", runID, err)
-}
-
-// runBatch queues every row of a new run: the claim of its idempotency key
-// (when it has one), the run, its readings (one statement over arrays), its
-// samples, its curves and the audit rows.
-func runBatch(in *RunInput, runID string, body, payload []byte, curves []preparedCurve) (*pgx.Batch, error) {
+// runBatch queues every row of a new run: the run, its readings (one
+// statement over arrays), its samples, its curves and the audit rows.
+func runBatch(in *RunInput, runID string, payload []byte, curves []preparedCurve) (*pgx.Batch, error) {
 	var operator *string
 	if in.Operator != "" {
 		operator = &in.Operator
 	}
 	b := &pgx.Batch{}
-	if in.IdempotencyKey != "" {
-		b.Queue(sqlClaimKey, in.TokenID, in.IdempotencyKey, in.RequestHash, runID, body)
-	}
 	b.Queue(sqlInsertRun, runID, in.Method, in.MethodRevision, in.Instrument, in.AcquiredAt, operator,
 		in.Actor, in.SourceFormat, in.RequestHash, payload)
 
@@ -403,7 +408,7 @@ func runBatch(in *RunInput, runID string, body, payload []byte, curves []prepare
 	}
 	b.Queue(sqlInsertReadings, runID, analytes, levels, replicates, standard, concs, responses)
 	for i, s := range in.Samples {
-		b.Queue(sqlInsertSample, runID, i, s.ID, s.Analyte, s.Responses, s.Dilution)
+		b.Queue(sqlInsertSample, runID, i, s.ID, s.Analyte, s.Responses, s.Dilution, s.AcquiredAt)
 	}
 
 	curveIDs := make([]string, len(curves))
@@ -435,6 +440,31 @@ func runBatch(in *RunInput, runID string, body, payload []byte, curves []prepare
 		}
 	}
 	return b, nil
+}
+
+// runResults quantifies the samples of a new run against its new curves,
+// each pending review.
+func runResults(in *RunInput, curves []preparedCurve) []pendingResult {
+	byAnalyte := map[string]*preparedCurve{}
+	for i := range curves {
+		byAnalyte[curves[i].in.Analyte] = &curves[i]
+	}
+	var out []pendingResult
+	for i, s := range in.Samples {
+		c, ok := byAnalyte[s.Analyte]
+		if !ok {
+			continue // the api refuses such a sample; nothing to quantify it against
+		}
+		f := &curveFacts{ID: c.id, Status: StatusPendingReview, Verdict: c.verdict, Fitted: c.scalars.slope != nil, FailedChecks: c.failed}
+		at := in.AcquiredAt
+		if s.AcquiredAt != nil {
+			at = *s.AcquiredAt
+		}
+		state, reason := releaseOf(f, at)
+		out = append(out, pendingResult{position: i, curveID: c.id, unit: c.in.Unit, acquiredAt: at,
+			q: quantify(c.in.Report, s.Responses, s.Dilution), state: state, reason: reason})
+	}
+	return out
 }
 
 // Run is a stored run: its readings grouped back into standards in the order

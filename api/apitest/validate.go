@@ -26,6 +26,15 @@ import (
 	"curvekeeper/openapi"
 )
 
+func init() {
+	// The spec describes these bodies as text (`type: string`): the plot's
+	// SVG source and the YAML document itself. kin-openapi has no decoder for
+	// SVG and decodes YAML into a map, so neither could match; read both as
+	// plain text.
+	openapi3filter.RegisterBodyDecoder("image/svg+xml", openapi3filter.PlainBodyDecoder)
+	openapi3filter.RegisterBodyDecoder("application/yaml", openapi3filter.PlainBodyDecoder)
+}
+
 // spec is the loaded document and a router over it, built once.
 type spec struct {
 	doc    *openapi3.T

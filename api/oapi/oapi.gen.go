@@ -125,6 +125,45 @@ func (e Model) Valid() bool {
 	}
 }
 
+// Defines values for ReleaseState.
+const (
+	ReleaseProvisional ReleaseState = "provisional"
+	ReleaseReleasable  ReleaseState = "releasable"
+	ReleaseWithheld    ReleaseState = "withheld"
+)
+
+// Valid indicates whether the value is a known member of the ReleaseState enum.
+func (e ReleaseState) Valid() bool {
+	switch e {
+	case ReleaseProvisional:
+		return true
+	case ReleaseReleasable:
+		return true
+	case ReleaseWithheld:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for ResultEventKind.
+const (
+	ResultEventCreated      ResultEventKind = "created"
+	ResultEventStateChanged ResultEventKind = "state_changed"
+)
+
+// Valid indicates whether the value is a known member of the ResultEventKind enum.
+func (e ResultEventKind) Valid() bool {
+	switch e {
+	case ResultEventCreated:
+		return true
+	case ResultEventStateChanged:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for ReviewDecision.
 const (
 	ReviewApprove ReviewDecision = "approve"
@@ -203,6 +242,24 @@ func (e Verdict) Valid() bool {
 	}
 }
 
+// Defines values for VerificationKind.
+const (
+	VerificationContinuing VerificationKind = "continuing"
+	VerificationInitial    VerificationKind = "initial"
+)
+
+// Valid indicates whether the value is a known member of the VerificationKind enum.
+func (e VerificationKind) Valid() bool {
+	switch e {
+	case VerificationContinuing:
+		return true
+	case VerificationInitial:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for Weighting.
 const (
 	WeightingAuto  Weighting = "auto"
@@ -264,6 +321,11 @@ type AcceptanceInput struct {
 
 	// RunsAlpha A significance level.
 	RunsAlpha *Alpha `json:"runs_alpha,omitempty"`
+
+	// VerificationTolerancePct |%D| a verification standard (ICV/CCV) may show against its
+	// nominal value. Default 20, after US EPA SW-846 Method 8000D
+	// calibration verification; the laboratory's method sets its own.
+	VerificationTolerancePct *float64 `json:"verification_tolerance_pct,omitempty"`
 }
 
 // AcceptancePolicy Every threshold in force, defaults filled in.
@@ -282,6 +344,9 @@ type AcceptancePolicy struct {
 	OutlierCooksD           float64     `json:"outlier_cooks_d"`
 	OutlierStudentized      float64     `json:"outlier_studentized"`
 	RunsAlpha               float64     `json:"runs_alpha"`
+
+	// VerificationTolerancePct The |%D| allowed for verification standards (default 20, US EPA SW-846 Method 8000D).
+	VerificationTolerancePct float64 `json:"verification_tolerance_pct"`
 }
 
 // Alpha A significance level.
@@ -392,8 +457,11 @@ type Curve struct {
 
 	// EngineVersion The calibration engine that computed the fit, e.g. `calib/1.0.0`.
 	EngineVersion string `json:"engine_version"`
-	ID            UUID   `json:"id"`
-	Instrument    string `json:"instrument"`
+
+	// Exclusion Present on an exclusion revision.
+	Exclusion  *Exclusion `json:"exclusion,omitempty"`
+	ID         UUID       `json:"id"`
+	Instrument string     `json:"instrument"`
 
 	// Levels Distinct levels in the fit.
 	Levels int `json:"levels"`
@@ -426,7 +494,10 @@ type Curve struct {
 
 	// Review The review decision, present once the curve is reviewed.
 	Review *Review `json:"review,omitempty"`
-	RunID  UUID    `json:"run_id"`
+
+	// RevisionOf Present on an exclusion revision, the curve it was refitted from.
+	RevisionOf *UUID `json:"revision_of,omitempty"`
+	RunID      UUID  `json:"run_id"`
 
 	// StandardErrors Standard errors of the coefficients, same order.
 	StandardErrors []float64 `json:"standard_errors"`
@@ -457,6 +528,28 @@ type Curve struct {
 
 	// ZeroHandling How zero concentrations or responses were kept from producing infinite weights; empty when none arose.
 	ZeroHandling string `json:"zero_handling"`
+}
+
+// CurveInForce defines model for CurveInForce.
+type CurveInForce struct {
+	// At The moment asked about.
+	At time.Time `json:"at"`
+
+	// Basis Why this curve is in force, in words.
+	Basis string `json:"basis"`
+
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions     `json:"cautions"`
+	Curve    CurveSummary `json:"curve"`
+
+	// ExpiresAt When it leaves force by the method's maximum age; null without one.
+	ExpiresAt *time.Time `json:"expires_at"`
+
+	// LastVerification The latest verification at or before `at`; null when none.
+	LastVerification *Verification `json:"last_verification"`
 }
 
 // CurveList defines model for CurveList.
@@ -534,6 +627,41 @@ type CurveSummary struct {
 // Dilution Dilution factor applied after inversion (reported = curve value × dilution); 1 when absent.
 type Dilution = float64
 
+// Exclusion Present on an exclusion revision.
+type Exclusion struct {
+	Actor string    `json:"actor"`
+	At    time.Time `json:"at"`
+
+	// Points Every reading the revision excludes.
+	Points []struct {
+		Level     string `json:"level"`
+		Replicate int    `json:"replicate"`
+	} `json:"points"`
+	RangeReason *string `json:"range_reason"`
+	Reason      string  `json:"reason"`
+	RevisionOf  UUID    `json:"revision_of"`
+}
+
+// ExclusionPoint defines model for ExclusionPoint.
+type ExclusionPoint struct {
+	// Level A name of an instrument, analyte, method, level or sample.
+	Level Identifier `json:"level"`
+
+	// Replicate One reading of the level, 1-based in acquisition order; every reading of the level when absent.
+	Replicate *int `json:"replicate,omitempty"`
+}
+
+// ExclusionRequest defines model for ExclusionRequest.
+type ExclusionRequest struct {
+	Points []ExclusionPoint `json:"points"`
+
+	// RangeReason Why the range may shrink at both ends; required when the lowest and highest levels are both excluded.
+	RangeReason *Text `json:"range_reason,omitempty"`
+
+	// Reason Why the readings are excluded.
+	Reason Text `json:"reason"`
+}
+
 // Health defines model for Health.
 type Health struct {
 	Status HealthStatus `json:"status"`
@@ -545,12 +673,43 @@ type HealthStatus string
 // Identifier A name of an instrument, analyte, method, level or sample.
 type Identifier = string
 
+// InstrumentPredictionRequest defines model for InstrumentPredictionRequest.
+type InstrumentPredictionRequest struct {
+	// Analyte A name of an instrument, analyte, method, level or sample.
+	Analyte Identifier `json:"analyte"`
+
+	// At The moment whose curve in force is used; now when absent.
+	At *time.Time `json:"at,omitempty"`
+
+	// Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
+	Confidence *Confidence        `json:"confidence,omitempty"`
+	Samples    []PredictionSample `json:"samples"`
+}
+
 // Interval Confidence interval of the concentration. When `bounded` is false, `low` and `high` are null.
 type Interval struct {
 	Bounded bool     `json:"bounded"`
 	High    *float64 `json:"high"`
 	Level   float64  `json:"level"`
 	Low     *float64 `json:"low"`
+}
+
+// LateSampleInput defines model for LateSampleInput.
+type LateSampleInput struct {
+	// AcquiredAt When the sample was measured; the time received when absent.
+	AcquiredAt *time.Time `json:"acquired_at,omitempty"`
+
+	// Analyte A name of an instrument, analyte, method, level or sample.
+	Analyte Identifier `json:"analyte"`
+
+	// Dilution Dilution factor applied after inversion (reported = curve value × dilution); 1 when absent.
+	Dilution *Dilution `json:"dilution,omitempty"`
+
+	// ID A name of an instrument, analyte, method, level or sample.
+	ID Identifier `json:"id"`
+
+	// Responses Replicate readings, in acquisition order.
+	Responses Responses `json:"responses"`
 }
 
 // Limits Detection and quantification limits, in concentration units except `critical_value` (a response); null when not computed.
@@ -590,11 +749,15 @@ type Method struct {
 	// Description Empty when none was given.
 	Description string `json:"description"`
 
+	// MaxCurveAgeHours Null when curves do not expire.
+	MaxCurveAgeHours *float64 `json:"max_curve_age_hours"`
+
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
-	Model    Model  `json:"model"`
-	Name     string `json:"name"`
-	Revision int    `json:"revision"`
+	Model                Model  `json:"model"`
+	Name                 string `json:"name"`
+	PendingCurvesInForce bool   `json:"pending_curves_in_force"`
+	Revision             int    `json:"revision"`
 
 	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
 	// replicate SDs; `auto` chooses among the others by the smallest sum of
@@ -620,12 +783,18 @@ type MethodRequest struct {
 	// Description Free text for people; no control characters except tab, line feed and carriage return.
 	Description *Text `json:"description,omitempty"`
 
+	// MaxCurveAgeHours How long after acquisition a curve stays in force; no limit when absent.
+	MaxCurveAgeHours *float64 `json:"max_curve_age_hours,omitempty"`
+
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
 	Model Model `json:"model"`
 
 	// Name A name of an instrument, analyte, method, level or sample.
 	Name Identifier `json:"name"`
+
+	// PendingCurvesInForce Whether a passing curve that awaits review may be the curve in force (default false).
+	PendingCurvesInForce *bool `json:"pending_curves_in_force,omitempty"`
 
 	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
 	// replicate SDs; `auto` chooses among the others by the smallest sum of
@@ -679,6 +848,8 @@ type PredictionResult struct {
 
 	// Flags `below_range`, `above_range`, `extrapolated`, `below_lod`,
 	// `below_loq`, `negative`, `no_root_in_range`, `unbounded_interval`.
+	// Stored sample results may also carry `no_curve` and
+	// `not_quantifiable` (see `SampleResult`).
 	Flags []string `json:"flags"`
 	ID    string   `json:"id"`
 
@@ -748,11 +919,63 @@ type Range struct {
 	Low  *float64 `json:"low"`
 }
 
+// ReleaseState `provisional` while the curve awaits review; `releasable` once it is
+// approved and no verification failed before the sample; `withheld`
+// when the curve is rejected, failed, unfittable or superseded, or a
+// verification failed before the sample. `release_reason` says which.
+type ReleaseState string
+
 // Response One instrument reading (may be negative after blank correction).
 type Response = float64
 
 // Responses Replicate readings, in acquisition order.
 type Responses = []Response
+
+// ResultEvent defines model for ResultEvent.
+type ResultEvent struct {
+	Analyte string    `json:"analyte"`
+	At      time.Time `json:"at"`
+
+	// Cause `run.create`, `samples.add`, `curve.review`, `curve.verification` or `curve.exclusion`.
+	Cause         string          `json:"cause"`
+	Concentration *float64        `json:"concentration"`
+	CurveID       UUID            `json:"curve_id"`
+	Kind          ResultEventKind `json:"kind"`
+
+	// PreviousState The state before; null for `created`.
+	PreviousState *ReleaseState `json:"previous_state"`
+	Reason        string        `json:"reason"`
+
+	// ReleaseState `provisional` while the curve awaits review; `releasable` once it is
+	// approved and no verification failed before the sample; `withheld`
+	// when the curve is rejected, failed, unfittable or superseded, or a
+	// verification failed before the sample. `release_reason` says which.
+	ReleaseState ReleaseState `json:"release_state"`
+	ResultID     int64        `json:"result_id"`
+	RunID        UUID         `json:"run_id"`
+	SampleID     string       `json:"sample_id"`
+
+	// Seq Position in the feed; increases with every event.
+	Seq  int64  `json:"seq"`
+	Unit string `json:"unit"`
+}
+
+// ResultEventKind defines model for ResultEvent.Kind.
+type ResultEventKind string
+
+// ResultFeed defines model for ResultFeed.
+type ResultFeed struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions      `json:"cautions"`
+	Events   []ResultEvent `json:"events"`
+	HasMore  bool          `json:"has_more"`
+
+	// NextCursor Pass as `since` for the next page; never null.
+	NextCursor string `json:"next_cursor"`
+}
 
 // Review The review decision, present once the curve is reviewed.
 type Review struct {
@@ -857,6 +1080,17 @@ type RunRequest struct {
 	Standards []StandardInput `json:"standards"`
 }
 
+// RunResults defines model for RunResults.
+type RunResults struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions       `json:"cautions"`
+	Results  []SampleResult `json:"results"`
+	RunID    UUID           `json:"run_id"`
+}
+
 // RunSample defines model for RunSample.
 type RunSample struct {
 	Analyte string `json:"analyte"`
@@ -880,6 +1114,70 @@ type RunSampleInput struct {
 
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
+}
+
+// SampleResult A sample quantified against a curve when it was stored.
+type SampleResult struct {
+	AcquiredAt time.Time `json:"acquired_at"`
+	Analyte    string    `json:"analyte"`
+
+	// Concentration After dilution; null when the curve gave no value (see `flags`).
+	Concentration *float64  `json:"concentration"`
+	CreatedAt     time.Time `json:"created_at"`
+	CreatedBy     string    `json:"created_by"`
+
+	// CurveID The curve the concentration came from.
+	CurveID UUID `json:"curve_id"`
+
+	// Dilution The dilution factor applied after inversion (reported = curve value × dilution).
+	Dilution float64 `json:"dilution"`
+
+	// Flags The prediction flags of `POST /v1/curves/{id}/predictions`, and
+	// `no_curve` (the curve could not be fitted) or `not_quantifiable`
+	// (the engine refused the readings; `interval_method` says why).
+	Flags []string `json:"flags"`
+
+	// ID The result's id, as the change feed names it.
+	ID int64 `json:"id"`
+
+	// Interval Confidence interval of the concentration. When `bounded` is false, `low` and `high` are null.
+	Interval       Interval `json:"interval"`
+	IntervalMethod string   `json:"interval_method"`
+	MeanResponse   float64  `json:"mean_response"`
+	Readings       int      `json:"readings"`
+	ReleaseReason  string   `json:"release_reason"`
+
+	// ReleaseState `provisional` while the curve awaits review; `releasable` once it is
+	// approved and no verification failed before the sample; `withheld`
+	// when the curve is rejected, failed, unfittable or superseded, or a
+	// verification failed before the sample. `release_reason` says which.
+	ReleaseState  ReleaseState `json:"release_state"`
+	Responses     []float64    `json:"responses"`
+	RunID         UUID         `json:"run_id"`
+	SampleID      string       `json:"sample_id"`
+	StandardError *float64     `json:"standard_error"`
+
+	// StateChangedAt When the release state or its reason last changed.
+	StateChangedAt time.Time `json:"state_changed_at"`
+
+	// Unit UCUM code of the analyte's concentration unit, which `concentration`, `standard_error` and `interval` are in.
+	Unit string `json:"unit"`
+}
+
+// SampleResults defines model for SampleResults.
+type SampleResults struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions       `json:"cautions"`
+	Results  []SampleResult `json:"results"`
+	SampleID string         `json:"sample_id"`
+}
+
+// SamplesRequest defines model for SamplesRequest.
+type SamplesRequest struct {
+	Samples []LateSampleInput `json:"samples"`
 }
 
 // Scope defines model for Scope.
@@ -945,6 +1243,80 @@ type VarianceModel struct {
 // Verdict `fail` when any mandatory check failed or the curve could not be fitted.
 type Verdict string
 
+// Verification defines model for Verification.
+type Verification struct {
+	At            time.Time `json:"at"`
+	Concentration float64   `json:"concentration"`
+	CreatedAt     time.Time `json:"created_at"`
+	CreatedBy     string    `json:"created_by"`
+	CurveID       UUID      `json:"curve_id"`
+	Detail        string    `json:"detail"`
+
+	// DifferencePct %D = 100·(found − nominal)/nominal.
+	DifferencePct *float64 `json:"difference_pct"`
+
+	// Found Concentration read back; null when the curve has no root for the response.
+	Found *float64 `json:"found"`
+	ID    UUID     `json:"id"`
+
+	// Kind `initial` (ICV) or `continuing` (CCV) calibration verification.
+	Kind  VerificationKind `json:"kind"`
+	Level string           `json:"level"`
+
+	// LimitPct The |%D| allowed by the curve's method revision.
+	LimitPct    float64   `json:"limit_pct"`
+	Passed      bool      `json:"passed"`
+	RecoveryPct *float64  `json:"recovery_pct"`
+	Responses   []float64 `json:"responses"`
+
+	// Source Where the limit's default comes from.
+	Source string `json:"source"`
+}
+
+// VerificationCreated defines model for VerificationCreated.
+type VerificationCreated struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions `json:"cautions"`
+
+	// ResultsChanged How many results changed release state because of it.
+	ResultsChanged int          `json:"results_changed"`
+	Verification   Verification `json:"verification"`
+}
+
+// VerificationKind `initial` (ICV) or `continuing` (CCV) calibration verification.
+type VerificationKind string
+
+// VerificationList defines model for VerificationList.
+type VerificationList struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions      Cautions       `json:"cautions"`
+	Verifications []Verification `json:"verifications"`
+}
+
+// VerificationRequest defines model for VerificationRequest.
+type VerificationRequest struct {
+	// At When the standard was measured.
+	At time.Time `json:"at"`
+
+	// Concentration Nominal concentration, > 0, in the analyte's unit.
+	Concentration float64 `json:"concentration"`
+
+	// Kind `initial` (ICV) or `continuing` (CCV) calibration verification.
+	Kind VerificationKind `json:"kind"`
+
+	// Level A name of an instrument, analyte, method, level or sample.
+	Level Identifier `json:"level"`
+
+	// Responses Replicate readings, in acquisition order.
+	Responses Responses `json:"responses"`
+}
+
 // WeightCandidate defines model for WeightCandidate.
 type WeightCandidate struct {
 	Chosen bool `json:"chosen"`
@@ -973,6 +1345,9 @@ type CurveID = UUID
 
 // IdempotencyKey defines model for IdempotencyKey.
 type IdempotencyKey = string
+
+// Instrument A name of an instrument, analyte, method, level or sample.
+type Instrument = Identifier
 
 // RunID defines model for RunID.
 type RunID = UUID
@@ -1031,10 +1406,27 @@ type ListCurvesParams struct {
 	Cursor *Cursor `form:"cursor,omitempty" json:"cursor,omitempty"`
 }
 
+// GetCurveInForceParams defines parameters for GetCurveInForce.
+type GetCurveInForceParams struct {
+	Analyte Identifier `form:"analyte" json:"analyte"`
+
+	// At The moment, RFC 3339; now when absent.
+	At *time.Time `form:"at,omitempty" json:"at,omitempty"`
+}
+
 // GetMethodParams defines parameters for GetMethod.
 type GetMethodParams struct {
 	// Revision A specific revision; the latest when absent.
 	Revision *int `form:"revision,omitempty" json:"revision,omitempty"`
+}
+
+// ListResultEventsParams defines parameters for ListResultEvents.
+type ListResultEventsParams struct {
+	// Since The `next_cursor` of the previous page; absent for the start of the feed.
+	Since *Cursor `form:"since,omitempty" json:"since,omitempty"`
+
+	// Limit Page size.
+	Limit *int `form:"limit,omitempty" json:"limit,omitempty"`
 }
 
 // CreateRunParams defines parameters for CreateRun.
@@ -1056,17 +1448,29 @@ type CreateRunParams struct {
 	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
 }
 
+// CreateExclusionJSONRequestBody defines body for CreateExclusion for application/json ContentType.
+type CreateExclusionJSONRequestBody = ExclusionRequest
+
 // CreatePredictionsJSONRequestBody defines body for CreatePredictions for application/json ContentType.
 type CreatePredictionsJSONRequestBody = PredictionRequest
 
 // ReviewCurveJSONRequestBody defines body for ReviewCurve for application/json ContentType.
 type ReviewCurveJSONRequestBody = ReviewRequest
 
+// CreateVerificationJSONRequestBody defines body for CreateVerification for application/json ContentType.
+type CreateVerificationJSONRequestBody = VerificationRequest
+
+// CreateInstrumentPredictionsJSONRequestBody defines body for CreateInstrumentPredictions for application/json ContentType.
+type CreateInstrumentPredictionsJSONRequestBody = InstrumentPredictionRequest
+
 // CreateMethodJSONRequestBody defines body for CreateMethod for application/json ContentType.
 type CreateMethodJSONRequestBody = MethodRequest
 
 // CreateRunJSONRequestBody defines body for CreateRun for application/json ContentType.
 type CreateRunJSONRequestBody = RunRequest
+
+// CreateRunSamplesJSONRequestBody defines body for CreateRunSamples for application/json ContentType.
+type CreateRunSamplesJSONRequestBody = SamplesRequest
 
 // CreateTokenJSONRequestBody defines body for CreateToken for application/json ContentType.
 type CreateTokenJSONRequestBody = TokenRequest
@@ -1094,6 +1498,9 @@ type ServerInterface interface {
 	// GetCurveAudit Audit trail of a curve
 	// (GET /v1/curves/{id}/audit)
 	GetCurveAudit(ctx echo.Context, id CurveID) error
+	// CreateExclusion Exclude standards and refit, as a new revision
+	// (POST /v1/curves/{id}/exclusions)
+	CreateExclusion(ctx echo.Context, id CurveID) error
 	// GetCurvePlotPNG Plot of a curve, PNG
 	// (GET /v1/curves/{id}/plot.png)
 	GetCurvePlotPNG(ctx echo.Context, id CurveID) error
@@ -1106,6 +1513,18 @@ type ServerInterface interface {
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
 	ReviewCurve(ctx echo.Context, id CurveID) error
+	// ListVerifications Verification standards of a curve
+	// (GET /v1/curves/{id}/verifications)
+	ListVerifications(ctx echo.Context, id CurveID) error
+	// CreateVerification Record a verification standard (ICV/CCV)
+	// (POST /v1/curves/{id}/verifications)
+	CreateVerification(ctx echo.Context, id CurveID) error
+	// GetCurveInForce The curve in force at a moment
+	// (GET /v1/instruments/{instrument}/curves/current)
+	GetCurveInForce(ctx echo.Context, instrument Instrument, params GetCurveInForceParams) error
+	// CreateInstrumentPredictions Quantify against the curve in force
+	// (POST /v1/instruments/{instrument}/predictions)
+	CreateInstrumentPredictions(ctx echo.Context, instrument Instrument) error
 	// ListMethods All methods, latest revisions
 	// (GET /v1/methods)
 	ListMethods(ctx echo.Context) error
@@ -1115,12 +1534,24 @@ type ServerInterface interface {
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx echo.Context, name Identifier, params GetMethodParams) error
+	// ListResultEvents Change feed of sample results
+	// (GET /v1/results)
+	ListResultEvents(ctx echo.Context, params ListResultEventsParams) error
 	// CreateRun Post a run and fit its curves
 	// (POST /v1/runs)
 	CreateRun(ctx echo.Context, params CreateRunParams) error
 	// GetRun A run as stored
 	// (GET /v1/runs/{id})
 	GetRun(ctx echo.Context, id RunID) error
+	// GetRunResults Sample results of a run
+	// (GET /v1/runs/{id}/results)
+	GetRunResults(ctx echo.Context, id RunID) error
+	// CreateRunSamples Add samples to a run and quantify them
+	// (POST /v1/runs/{id}/samples)
+	CreateRunSamples(ctx echo.Context, id RunID) error
+	// GetSampleResults Every result for a LIMS sample id
+	// (GET /v1/samples/{sample_id})
+	GetSampleResults(ctx echo.Context, sampleID Identifier) error
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx echo.Context) error
@@ -1276,6 +1707,22 @@ func (w *ServerInterfaceWrapper) GetCurveAudit(ctx echo.Context) error {
 	return err
 }
 
+// CreateExclusion converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateExclusion(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateExclusion(ctx, id)
+	return err
+}
+
 // GetCurvePlotPNG converts echo context to params.
 func (w *ServerInterfaceWrapper) GetCurvePlotPNG(ctx echo.Context) error {
 	var err error
@@ -1340,6 +1787,86 @@ func (w *ServerInterfaceWrapper) ReviewCurve(ctx echo.Context) error {
 	return err
 }
 
+// ListVerifications converts echo context to params.
+func (w *ServerInterfaceWrapper) ListVerifications(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListVerifications(ctx, id)
+	return err
+}
+
+// CreateVerification converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateVerification(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateVerification(ctx, id)
+	return err
+}
+
+// GetCurveInForce converts echo context to params.
+func (w *ServerInterfaceWrapper) GetCurveInForce(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "instrument" -------------
+	var instrument Instrument
+
+	err = runtime.BindStyledParameterWithOptions("simple", "instrument", ctx.Param("instrument"), &instrument, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params GetCurveInForceParams
+	// ------------- Required query parameter "analyte" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "analyte", ctx.QueryParams(), &params.Analyte, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter analyte: %s", err))
+	}
+
+	// ------------- Optional query parameter "at" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "at", ctx.QueryParams(), &params.At, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter at: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetCurveInForce(ctx, instrument, params)
+	return err
+}
+
+// CreateInstrumentPredictions converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateInstrumentPredictions(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "instrument" -------------
+	var instrument Instrument
+
+	err = runtime.BindStyledParameterWithOptions("simple", "instrument", ctx.Param("instrument"), &instrument, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateInstrumentPredictions(ctx, instrument)
+	return err
+}
+
 // ListMethods converts echo context to params.
 func (w *ServerInterfaceWrapper) ListMethods(ctx echo.Context) error {
 	var err error
@@ -1380,6 +1907,31 @@ func (w *ServerInterfaceWrapper) GetMethod(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.GetMethod(ctx, name, params)
+	return err
+}
+
+// ListResultEvents converts echo context to params.
+func (w *ServerInterfaceWrapper) ListResultEvents(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params ListResultEventsParams
+	// ------------- Optional query parameter "since" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "since", ctx.QueryParams(), &params.Since, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter since: %s", err))
+	}
+
+	// ------------- Optional query parameter "limit" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "limit", ctx.QueryParams(), &params.Limit, runtime.BindQueryParameterOptions{Type: "integer", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter limit: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListResultEvents(ctx, params)
 	return err
 }
 
@@ -1452,6 +2004,54 @@ func (w *ServerInterfaceWrapper) GetRun(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.GetRun(ctx, id)
+	return err
+}
+
+// GetRunResults converts echo context to params.
+func (w *ServerInterfaceWrapper) GetRunResults(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id RunID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetRunResults(ctx, id)
+	return err
+}
+
+// CreateRunSamples converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateRunSamples(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id RunID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateRunSamples(ctx, id)
+	return err
+}
+
+// GetSampleResults converts echo context to params.
+func (w *ServerInterfaceWrapper) GetSampleResults(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "sample_id" -------------
+	var sampleID Identifier
+
+	err = runtime.BindStyledParameterWithOptions("simple", "sample_id", ctx.Param("sample_id"), &sampleID, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter sample_id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetSampleResults(ctx, sampleID)
 	return err
 }
 
@@ -1540,6 +2140,15 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/curves/:id/audit", wrapper.GetCurveAudit, options.OperationMiddlewares["getCurveAudit"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id/plot.svg", wrapper.GetCurvePlotSVG, options.OperationMiddlewares["getCurvePlotSVG"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id/plot.png", wrapper.GetCurvePlotPNG, options.OperationMiddlewares["getCurvePlotPNG"]...)
+	router.POST(options.BaseURL+"/v1/runs/:id/samples", wrapper.CreateRunSamples, options.OperationMiddlewares["createRunSamples"]...)
+	router.GET(options.BaseURL+"/v1/runs/:id/results", wrapper.GetRunResults, options.OperationMiddlewares["getRunResults"]...)
+	router.GET(options.BaseURL+"/v1/samples/:sample_id", wrapper.GetSampleResults, options.OperationMiddlewares["getSampleResults"]...)
+	router.GET(options.BaseURL+"/v1/results", wrapper.ListResultEvents, options.OperationMiddlewares["listResultEvents"]...)
+	router.GET(options.BaseURL+"/v1/curves/:id/verifications", wrapper.ListVerifications, options.OperationMiddlewares["listVerifications"]...)
+	router.POST(options.BaseURL+"/v1/curves/:id/verifications", wrapper.CreateVerification, options.OperationMiddlewares["createVerification"]...)
+	router.POST(options.BaseURL+"/v1/curves/:id/exclusions", wrapper.CreateExclusion, options.OperationMiddlewares["createExclusion"]...)
+	router.GET(options.BaseURL+"/v1/instruments/:instrument/curves/current", wrapper.GetCurveInForce, options.OperationMiddlewares["getCurveInForce"]...)
+	router.POST(options.BaseURL+"/v1/instruments/:instrument/predictions", wrapper.CreateInstrumentPredictions, options.OperationMiddlewares["createInstrumentPredictions"]...)
 	router.GET(options.BaseURL+"/v1/methods", wrapper.ListMethods, options.OperationMiddlewares["listMethods"]...)
 	router.POST(options.BaseURL+"/v1/methods", wrapper.CreateMethod, options.OperationMiddlewares["createMethod"]...)
 	router.GET(options.BaseURL+"/v1/methods/:name", wrapper.GetMethod, options.OperationMiddlewares["getMethod"]...)
@@ -2142,6 +2751,216 @@ type GetCurveAudit503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response GetCurveAudit503ApplicationProblemPlusJSONResponse) VisitGetCurveAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusionRequestObject struct {
+	ID   CurveID `json:"id"`
+	Body *CreateExclusionJSONRequestBody
+}
+
+type CreateExclusionResponseObject interface {
+	VisitCreateExclusionResponse(w http.ResponseWriter) error
+}
+
+type CreateExclusion201ResponseHeaders struct {
+	Location string
+}
+
+type CreateExclusion201JSONResponse struct {
+	Body    Curve
+	Headers CreateExclusion201ResponseHeaders
+}
+
+func (response CreateExclusion201JSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.Header().Set("Location", fmt.Sprint(response.Headers.Location))
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion400ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion401ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion403ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion404ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion409ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion413ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion415ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion422ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion429ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion500ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion503ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -2844,6 +3663,685 @@ func (response ReviewCurve503ApplicationProblemPlusJSONResponse) VisitReviewCurv
 	return err
 }
 
+type ListVerificationsRequestObject struct {
+	ID CurveID `json:"id"`
+}
+
+type ListVerificationsResponseObject interface {
+	VisitListVerificationsResponse(w http.ResponseWriter) error
+}
+
+type ListVerifications200JSONResponse VerificationList
+
+func (response ListVerifications200JSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications400ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications401ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications403ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications404ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications429ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications500ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications503ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerificationRequestObject struct {
+	ID   CurveID `json:"id"`
+	Body *CreateVerificationJSONRequestBody
+}
+
+type CreateVerificationResponseObject interface {
+	VisitCreateVerificationResponse(w http.ResponseWriter) error
+}
+
+type CreateVerification201JSONResponse VerificationCreated
+
+func (response CreateVerification201JSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification400ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification401ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification403ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification404ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification409ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification413ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification415ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification422ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification429ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification500ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification503ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForceRequestObject struct {
+	Instrument Instrument `json:"instrument"`
+	Params     GetCurveInForceParams
+}
+
+type GetCurveInForceResponseObject interface {
+	VisitGetCurveInForceResponse(w http.ResponseWriter) error
+}
+
+type GetCurveInForce200JSONResponse CurveInForce
+
+func (response GetCurveInForce200JSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce400ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce401ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce403ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce404ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce429ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce500ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce503ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionsRequestObject struct {
+	Instrument Instrument `json:"instrument"`
+	Body       *CreateInstrumentPredictionsJSONRequestBody
+}
+
+type CreateInstrumentPredictionsResponseObject interface {
+	VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error
+}
+
+type CreateInstrumentPredictions200JSONResponse PredictionResponse
+
+func (response CreateInstrumentPredictions200JSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions400ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions401ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions403ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions404ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions409ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions413ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions415ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions422ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions429ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions500ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions503ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type ListMethodsRequestObject struct {
 }
 
@@ -3309,6 +4807,127 @@ func (response GetMethod503ApplicationProblemPlusJSONResponse) VisitGetMethodRes
 	return err
 }
 
+type ListResultEventsRequestObject struct {
+	Params ListResultEventsParams
+}
+
+type ListResultEventsResponseObject interface {
+	VisitListResultEventsResponse(w http.ResponseWriter) error
+}
+
+type ListResultEvents200JSONResponse ResultFeed
+
+func (response ListResultEvents200JSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents400ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents401ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents403ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents429ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents500ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents503ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type CreateRunRequestObject struct {
 	Params   CreateRunParams
 	JSONBody *CreateRunJSONRequestBody
@@ -3631,6 +5250,482 @@ type GetRun503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response GetRun503ApplicationProblemPlusJSONResponse) VisitGetRunResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResultsRequestObject struct {
+	ID RunID `json:"id"`
+}
+
+type GetRunResultsResponseObject interface {
+	VisitGetRunResultsResponse(w http.ResponseWriter) error
+}
+
+type GetRunResults200JSONResponse RunResults
+
+func (response GetRunResults200JSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults400ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults401ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults403ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults404ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults429ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults500ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults503ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamplesRequestObject struct {
+	ID   RunID `json:"id"`
+	Body *CreateRunSamplesJSONRequestBody
+}
+
+type CreateRunSamplesResponseObject interface {
+	VisitCreateRunSamplesResponse(w http.ResponseWriter) error
+}
+
+type CreateRunSamples201JSONResponse RunResults
+
+func (response CreateRunSamples201JSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples400ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples401ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples403ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples404ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples409ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples413ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples415ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples422ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples429ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples500ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples503ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResultsRequestObject struct {
+	SampleID Identifier `json:"sample_id"`
+}
+
+type GetSampleResultsResponseObject interface {
+	VisitGetSampleResultsResponse(w http.ResponseWriter) error
+}
+
+type GetSampleResults200JSONResponse SampleResults
+
+func (response GetSampleResults200JSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults400ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults401ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults403ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults404ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults429ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults500ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -3966,6 +6061,9 @@ type StrictServerInterface interface {
 	// GetCurveAudit Audit trail of a curve
 	// (GET /v1/curves/{id}/audit)
 	GetCurveAudit(ctx context.Context, request GetCurveAuditRequestObject) (GetCurveAuditResponseObject, error)
+	// CreateExclusion Exclude standards and refit, as a new revision
+	// (POST /v1/curves/{id}/exclusions)
+	CreateExclusion(ctx context.Context, request CreateExclusionRequestObject) (CreateExclusionResponseObject, error)
 	// GetCurvePlotPNG Plot of a curve, PNG
 	// (GET /v1/curves/{id}/plot.png)
 	GetCurvePlotPNG(ctx context.Context, request GetCurvePlotPNGRequestObject) (GetCurvePlotPNGResponseObject, error)
@@ -3978,6 +6076,18 @@ type StrictServerInterface interface {
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
 	ReviewCurve(ctx context.Context, request ReviewCurveRequestObject) (ReviewCurveResponseObject, error)
+	// ListVerifications Verification standards of a curve
+	// (GET /v1/curves/{id}/verifications)
+	ListVerifications(ctx context.Context, request ListVerificationsRequestObject) (ListVerificationsResponseObject, error)
+	// CreateVerification Record a verification standard (ICV/CCV)
+	// (POST /v1/curves/{id}/verifications)
+	CreateVerification(ctx context.Context, request CreateVerificationRequestObject) (CreateVerificationResponseObject, error)
+	// GetCurveInForce The curve in force at a moment
+	// (GET /v1/instruments/{instrument}/curves/current)
+	GetCurveInForce(ctx context.Context, request GetCurveInForceRequestObject) (GetCurveInForceResponseObject, error)
+	// CreateInstrumentPredictions Quantify against the curve in force
+	// (POST /v1/instruments/{instrument}/predictions)
+	CreateInstrumentPredictions(ctx context.Context, request CreateInstrumentPredictionsRequestObject) (CreateInstrumentPredictionsResponseObject, error)
 	// ListMethods All methods, latest revisions
 	// (GET /v1/methods)
 	ListMethods(ctx context.Context, request ListMethodsRequestObject) (ListMethodsResponseObject, error)
@@ -3987,12 +6097,24 @@ type StrictServerInterface interface {
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx context.Context, request GetMethodRequestObject) (GetMethodResponseObject, error)
+	// ListResultEvents Change feed of sample results
+	// (GET /v1/results)
+	ListResultEvents(ctx context.Context, request ListResultEventsRequestObject) (ListResultEventsResponseObject, error)
 	// CreateRun Post a run and fit its curves
 	// (POST /v1/runs)
 	CreateRun(ctx context.Context, request CreateRunRequestObject) (CreateRunResponseObject, error)
 	// GetRun A run as stored
 	// (GET /v1/runs/{id})
 	GetRun(ctx context.Context, request GetRunRequestObject) (GetRunResponseObject, error)
+	// GetRunResults Sample results of a run
+	// (GET /v1/runs/{id}/results)
+	GetRunResults(ctx context.Context, request GetRunResultsRequestObject) (GetRunResultsResponseObject, error)
+	// CreateRunSamples Add samples to a run and quantify them
+	// (POST /v1/runs/{id}/samples)
+	CreateRunSamples(ctx context.Context, request CreateRunSamplesRequestObject) (CreateRunSamplesResponseObject, error)
+	// GetSampleResults Every result for a LIMS sample id
+	// (GET /v1/samples/{sample_id})
+	GetSampleResults(ctx context.Context, request GetSampleResultsRequestObject) (GetSampleResultsResponseObject, error)
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx context.Context, request CreateTokenRequestObject) (CreateTokenResponseObject, error)
@@ -4180,6 +6302,54 @@ func (sh *strictHandler) GetCurveAudit(ctx echo.Context, id CurveID) error {
 	return nil
 }
 
+// CreateExclusion operation middleware
+func (sh *strictHandler) CreateExclusion(ctx echo.Context, id CurveID) error {
+	var request CreateExclusionRequestObject
+
+	request.ID = id
+
+	var body CreateExclusionJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateExclusion(ctx.Request().Context(), request.(CreateExclusionRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateExclusion")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateExclusionResponseObject); ok {
+		return validResponse.VisitCreateExclusionResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // GetCurvePlotPNG operation middleware
 func (sh *strictHandler) GetCurvePlotPNG(ctx echo.Context, id CurveID) error {
 	var request GetCurvePlotPNGRequestObject
@@ -4326,6 +6496,153 @@ func (sh *strictHandler) ReviewCurve(ctx echo.Context, id CurveID) error {
 	return nil
 }
 
+// ListVerifications operation middleware
+func (sh *strictHandler) ListVerifications(ctx echo.Context, id CurveID) error {
+	var request ListVerificationsRequestObject
+
+	request.ID = id
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListVerifications(ctx.Request().Context(), request.(ListVerificationsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListVerifications")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListVerificationsResponseObject); ok {
+		return validResponse.VisitListVerificationsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateVerification operation middleware
+func (sh *strictHandler) CreateVerification(ctx echo.Context, id CurveID) error {
+	var request CreateVerificationRequestObject
+
+	request.ID = id
+
+	var body CreateVerificationJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateVerification(ctx.Request().Context(), request.(CreateVerificationRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateVerification")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateVerificationResponseObject); ok {
+		return validResponse.VisitCreateVerificationResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetCurveInForce operation middleware
+func (sh *strictHandler) GetCurveInForce(ctx echo.Context, instrument Instrument, params GetCurveInForceParams) error {
+	var request GetCurveInForceRequestObject
+
+	request.Instrument = instrument
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetCurveInForce(ctx.Request().Context(), request.(GetCurveInForceRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetCurveInForce")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetCurveInForceResponseObject); ok {
+		return validResponse.VisitGetCurveInForceResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateInstrumentPredictions operation middleware
+func (sh *strictHandler) CreateInstrumentPredictions(ctx echo.Context, instrument Instrument) error {
+	var request CreateInstrumentPredictionsRequestObject
+
+	request.Instrument = instrument
+
+	var body CreateInstrumentPredictionsJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateInstrumentPredictions(ctx.Request().Context(), request.(CreateInstrumentPredictionsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateInstrumentPredictions")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateInstrumentPredictionsResponseObject); ok {
+		return validResponse.VisitCreateInstrumentPredictionsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // ListMethods operation middleware
 func (sh *strictHandler) ListMethods(ctx echo.Context) error {
 	var request ListMethodsRequestObject
@@ -4421,6 +6738,31 @@ func (sh *strictHandler) GetMethod(ctx echo.Context, name Identifier, params Get
 	return nil
 }
 
+// ListResultEvents operation middleware
+func (sh *strictHandler) ListResultEvents(ctx echo.Context, params ListResultEventsParams) error {
+	var request ListResultEventsRequestObject
+
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListResultEvents(ctx.Request().Context(), request.(ListResultEventsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListResultEvents")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListResultEventsResponseObject); ok {
+		return validResponse.VisitListResultEventsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // CreateRun operation middleware
 func (sh *strictHandler) CreateRun(ctx echo.Context, params CreateRunParams) error {
 	var request CreateRunRequestObject
@@ -4493,6 +6835,104 @@ func (sh *strictHandler) GetRun(ctx echo.Context, id RunID) error {
 		return err
 	} else if validResponse, ok := response.(GetRunResponseObject); ok {
 		return validResponse.VisitGetRunResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetRunResults operation middleware
+func (sh *strictHandler) GetRunResults(ctx echo.Context, id RunID) error {
+	var request GetRunResultsRequestObject
+
+	request.ID = id
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetRunResults(ctx.Request().Context(), request.(GetRunResultsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetRunResults")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetRunResultsResponseObject); ok {
+		return validResponse.VisitGetRunResultsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateRunSamples operation middleware
+func (sh *strictHandler) CreateRunSamples(ctx echo.Context, id RunID) error {
+	var request CreateRunSamplesRequestObject
+
+	request.ID = id
+
+	var body CreateRunSamplesJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateRunSamples(ctx.Request().Context(), request.(CreateRunSamplesRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateRunSamples")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateRunSamplesResponseObject); ok {
+		return validResponse.VisitCreateRunSamplesResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetSampleResults operation middleware
+func (sh *strictHandler) GetSampleResults(ctx echo.Context, sampleID Identifier) error {
+	var request GetSampleResultsRequestObject
+
+	request.SampleID = sampleID
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetSampleResults(ctx.Request().Context(), request.(GetSampleResultsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetSampleResults")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetSampleResultsResponseObject); ok {
+		return validResponse.VisitGetSampleResultsResponse(ctx.Response())
 	} else if response != nil {
 		return fmt.Errorf("unexpected response type: %T", response)
 	}
@@ -4575,224 +7015,309 @@ func (sh *strictHandler) DeleteToken(ctx echo.Context, id UUID) error {
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7H3bciNHltivpDHrENlTBEE2W6MmYyKWQ6lX3Onbkt3SrIUeVqIqAeSwkAllZpHEqNthh1+8r37xB6z9",
-	"AxvhmHD4TX5ff4PnSxznnMyqLKAAAmyyR+OQItTdAKrycjLP/fZDJ9OTqVZCOds5/KEzFjwXBv95JpyZ",
-	"HQ+dMPApFzYzcuqkVp3DzrnItMotc5pdc+nYQAy1EczAK1KNup2kY8T3pTQi7xw6U4qkY7OxmHAYaiKV",
-	"nJSTzmEv6bjZVHQOO1I5MRKm8+HDh6Qz5YZPhPPLOCnNlTj9cnENb8aCZfDjZ5bJHKaU8PWUu3En6Sg+",
-	"wYHzlUv5GyOGncPOL3ZrKOzSr3b37dvTLzuwntNcTKbaCZXNfitmiws5ZlkhhXI72VhbodilmLEtzuB9",
-	"Ji3jbKR1zrKxlpnYZm7MHZvwSwG/AMCkyPsKliisY5YPxRGzQjA3FkxPheEwy2eWRXN2+yrsls6r3m+0",
-	"1h1YbAPu/Oa5UCM37hzu7X+RwDlUnwHqzgkDY/7+u+Odf8d3/tjbedq9ONx598Nesrf/xYe/6VTHZZ2R",
-	"aoTAOSvVssMxpXrYo/kA79upVlbgVfkNz88IjvAp08oJhf/k02khM4Tk7tToQSEmv/yDhYX+sOaMr+kt",
-	"mrS51Re8GGozETmzM+X4TcKujVYjBrBi2jDOrnhRCqZLZ2VOB0vDHrJJeLev/v781cuEcUawZddjYQTj",
-	"TJWTgTBsIAqtRjZhXLFSXSp9rdhQiiKHV/zRMW36ynA1EuxK6oI7gb9+XwozYxVS0QXMtbBMaccANDO4",
-	"UB+SzolWw0JmnxR6eFGE1aXJAJGt406woTYDCeQFfyTM2OKE7cyIKymuRc54YQTPZwnjfUU/XUs31qVj",
-	"nA2lSxC/6GX4gQDPJ4LJGkkQWa2TRcGk6sP2R2O37eHxDJeRC/WpAeL0pVCs4NmlZeIKjs9meipYIa0T",
-	"OZOKpTc7AXV28DebdmHJpwpuAi++MkabT7nsMDETMHOXwTYGOp8xy2eWaVXMWB/JfP1Qv8O4yhuHDMTi",
-	"Q9J5qd0zXar8U8MdKFNeXccaScSNtA5X9prPCs3zN1o/52YkPvUCEaLiJhPCY4cV5kqYzyzLtBrKUWlE",
-	"zgo5kbTac2GuZCbeKn7FZcEHxSdfcM4dH3ArWMYVQHIAZ82zsciZ0tcJ0MewDZkJYJd2XDoHFDDX1wpY",
-	"x7xIslPJJG3r8k/vRtILLu2N1i+4mnn+YP8iGP2ZrS66ATInLdNXwjDpbDi0+9ruW8VLN9ZG/lF8Uix6",
-	"Ia2VapTUnC2p+JU2QLv1pcjZQHADrAigMrfpb7/9due4dGOhHKxSLMoW6W/w7ZSoOlcsRXKSMu6ckYPS",
-	"CbZ19uyEff6rJ73t1aLovDxDoJsanQlrAV++Uk662aeE4LeiKHa8QCHVtHTEsAdG8EsUGctCMD2M0ebI",
-	"Q8CmSMEsAwzrKz0cCpUDKqGkUBPbshCew71VtpxOtXEifyFyyd8gPD4190eU+MyyE5p1B1YByAEEQ6s5",
-	"UZjxLBNTZ7sofvo5YAnH+D1XmTgFsOHa81zCO7x4bWAAJ0FQHPLCivmV1G8zNzbCjnWR2yOEJK6hEEMH",
-	"IhxzKLrDkoQaSSVQNB/ysnBsy45JLisK4tJa4YMT4cY6x6s4jdbxQ2fAs8uLjBfZRaGvL5wuhIEVXExJ",
-	"BhM3WVFaeSVeBI2J7i/cDu46h51cl0DTExDt6YG9Xi9pU7BIjIQjr+ecSHUx5dZeDA3PCAw/rBx77ZE/",
-	"zU7GeqJtJnJuncykm13wYjq+9TYe40MfEhJG4NA3fA/Esgs9vBjKTd+ccJVzp02LDnkyFiDsXYMGyYZc",
-	"FqWhv+mqXQmTy8wdESq4sTCWcdAP8itptZmhiuXExN62FpznJShguJ6bU3ppr4YvN4aD3lgq+X0p/O9w",
-	"Wn4Doth41zcXxj7sVYCrXIgrUViv6NKjT+L39hetDfSiubDfl9wQo/yI+69LV0hhLjKtL+1F/mCbDfNY",
-	"V+bAJT2Lf5C5TKnsRuf9oRpED/4gMgeD1LT1tS5kNtuQNH+FGlBFlYGwDrXJRBIIr61J7sY0dhE6H08x",
-	"N6GMa7y9nM6t8XILlVvjrVYat8Z7DQq3OUFqkKAWerPWChrUZp03GrTjTiRiHVKwwVtziL3Gm000vfWF",
-	"D7FM/F0MgTmYt92EpRdy+T1PVmLhagybP4DmES9e8AYw2mG6eD7xzX3XRsECaOctv1aOlBzKDAVHhCFQ",
-	"oBUkt9d9EpPcbq/X22s50GPFixkpPyspZZPWkWV1NcKdIhiGkuYplXS3Wlvhmfk7g1P591shVubSfXUV",
-	"lIj191AT1jm9CLSga25ZrpVImOiOuiw1pepmRnAn8jRhKVoBu0PpGp/5dGr0VfyNEbBMkafdRZt2AivQ",
-	"LT4PIFJB8SIDHSpmHAZqH2eOAnEndpyciLZnc+G4LNrt6FNunMzKghubMKmyokSljgdLqEG7ArdadVtN",
-	"9PGxcUAZ2mDSqTDMz770HJ/r0YanKK6CR2ktLhDdlgU2MLcDP3LbWk94CcuzSy4PGRotaGrSojZMOuah",
-	"VykRh/mIS2VdbE/zUkZfZUY6YSRnQ6MnbFoOCmnHImejUubwMonnBR9og6TkMwsjG5FLh6pr0ldGjMoC",
-	"fsT5STFk569eo1rJpkZkIhc4FB0uG8zQhM8LQNmcTYWxWvVV5XArBLfCO4QCpBdu10SqIOgvMlnkwBse",
-	"Lxxh6Yg9NSH9DB5n12NBqm8Gg7NMl0XOvP0vvIvQUiwFci/yFA4D50LIpHQlUzIfX49n0dUeaF0Irppo",
-	"s7BnNKi1I1QkSuJVgBUBb0GD0hFTZVHM72DM4aoodOhcczJNhI20U3wYhSyuJIavlpXmr6sAHS8yHniP",
-	"oRvDcnFFuciCN6nSDlEzvJZW+I3F6uEi8NbhFg3xjE4qgnY0GJnMW7diRGV2Iqxztckk0xOB6NRKQS3g",
-	"DQgZS84RPabhGTiaieAWcRZdbvFRfvSBtfO/eoXhxlVgSmosiQ+7AtVKslvDvc3djBfAs6KIdk1Ruzpk",
-	"aS3QAc8jiS5N+iqNpDn4ZV6Qg+8qWQzolNQKvqukLxzECPjlSlxYB7sy+QXZXxOWVsIYviWszEteXIBA",
-	"Bl94qcumRK+EAhGoVfxsCp4tImcsNPqFguQXSYlLVhlLjPhUtMZaMIz5i7+OSedmB1a8c8UNWllh6XhM",
-	"L6R6HpZPX4Q94KfnPLt8NXyG28Avvl7cC37/G55dnjT2g1+fnVd7os9+Y+d+X1/5beGPp9He/NO0wTPa",
-	"H373qtokOX0zoRwZV9tum9ITqXgBHLF+EAQRun4kqH5mGYiCtwi/e73ov1ssDyfAgJEXtiD/td6xMhc5",
-	"sWl8iqRvwAo83yte2IT1uk+Y06zXffr06a2C+dOnTxui+ZO2VZXGtgmHr6b8+1KwSzGzwrEMn2JbA27F",
-	"5welKSrP9BSYrBqhLTiKx3iyt79WPMbFzrtf/k0bpcQomU1N3owkZfKrd9m3geUZwWGRtsm3/cMg8hYF",
-	"0IFMi+FQZhIYBqB3E9FsSow801fcSKBPKZosxWTqZgnM01cEV0uCtBIwOkyDzwE5TljqeRuKB+kQRILE",
-	"j4sWUxQQ+goEBKQp87oEEewL7lo5k99uqZCnh6ebF2WV1M5rLW3htywSRldy2PAcvIN72sx20mY3iU9m",
-	"ceOnik10Lood8X1JLhVtcmEOWSGV4IZ9N+glbLD3LvFfXGgjR1Kx7/C770ueAw3IwnMJG+y/axig1zPT",
-	"eIn0cdvyl6P+SQvCwyEO4FLA/3pYCRcVIWhH/YVF1Ve1bd7wG5twZ+RNmDiGdcLsj/+y9bv/+z/+w7e/",
-	"2/7zf/xfP/7PhBl9bYFYRs8RvBsguzfYrQYsqcqr0cGH0nBbYbzKmXV6I8zIh4szBFbEcjEyQliA4NAI",
-	"ketJwhT783/+L2waiYGRCY48bRdXwthWJoWhgLyQA+8ipOeJrAQhDPeGYUFkOsDnd/e6vW6v3Qwg8/XC",
-	"0ECgsM6UE2/rWNREKuNic9VfguCoMkcX2QaOOiQ2uipK0suatxKI5/QUXAvUItqVQ/zpAvTN5dD1Wkh4",
-	"qP2iAJNrLH2v1eUCtOe2lb/Ah0BJabtHnj3VAGNb6P0AiUArEdSzUjlBbtfVwJxq2UooyfEQ2Fpgi0nY",
-	"rjYszJqwkdHlVOSgrxNdkooYipU1iV3fTQegfQ3LaiPvDWv0fPSAHI2Rp8fkBkiiEwbkOFzMVkminMjZ",
-	"UJsmmd++ozqLgYe37esMH/oQyd02X0EoKtDn4krS0u3WbPdmOwmu9X/952v2a6bYNe6b2YwX4q4bQIPL",
-	"rTugp8jmfrE+jZgTjlpCqsNe6YEl7AVtkAtX6WOZBmix5XqX8pwejUzHzW28PXn7gmU6r0yltYLQUCAq",
-	"dWGBHgU+e7EWofjGP10RDC8w3vqef+xD0qG7c5FxlUtgam32Q+nGLOWl02niIzKrxz+zzGbaiCMSbWsj",
-	"zNrYTkh7EgZsQ/mwRq2uhGrX1L7W1x4NKDYAcSH37E7BDSmkBT6omS0n8JcKcftphI7tzJAGhg8gVhfF",
-	"q2Hn8Lt1doXvv2uL+8HnBCthTVsY16AE8yH0aLIheCOD8TFCSM3j1VxUP9z7uiLbG7eXRClx8j8Koy/G",
-	"XOWFB8fiMcAjzetuKfrNB6uza2FAWZw6b0o2Oi8zqUZMqqFU0olwkuFSeRuWEowbTVdrtaGfouuJRFXs",
-	"f5HZN4SXWqHx2B2YdXz+7dBvw6K2WzsPvjldZZFONqTyJt9AKbNp9IEJKlNSpEZUPL7SsSoRKnCumnJU",
-	"9DBpKJAN8TnS7xbE01Z7HtDO59Ju6g27kxYJc22gRSJZLycTbmZtpEeJG3eRLbF7kD0k0Hp4lE35KFhe",
-	"PZMuuKWvu8v58JJr7PfSXEUE/KWwJuFpM4PIKyUWpD0KMkWTteQjpa2TmT1iPPqIbqTK0CzdXNw421Ka",
-	"FA9tmNLMaO1Q7Brw7HInMmD6B8ja1sNHghGThIJVEYQl5nu06ssR04VN4bxEdyop/o4iUzZvO1xLyUaX",
-	"u7QuKNp3mDjI3e2+CJLP7zg0ko+lepzho7uuuTJI41mGAJXmae31ej/+aWvuUFEzboB6e7fx8c4CL9HS",
-	"O++HuNma5x4FYFzEM7enkRSgd9ELllIy8IU77pT40DJtaV6XQMHpiPUIn8NVuw+nEd2tebyJQFkttbrE",
-	"0TEtgWF0MRewK1kgEK33MEKopQT1vNIR5pU19FNj4laXHTMlrr1lQFqWTikC/YKUq/SoilpAdy9Qum7k",
-	"CWo+DfzXh27gsilmY13PTL3m1zTqWRg0+um4Hj/69qyaqtq8Z4+bhrI0zM/3YFNu2O/WG2/IZSHyi9q0",
-	"vBjVUiubFIVMGYKSLP9Tbi3bqvyXmNHo3crb3ZVRB/OCxL0Z1DYzZt2nNeqWOMDbaeamNoO7q+WLevUd",
-	"FWOv5aypUn06NSSW+1tE9+a9XyHKt1G8L2VRtmvZ4Rc2xCgqzJ+VImd86IRhUnklgG0ZQXk17NeeHFIW",
-	"8P/+ryz3Q2wfsT3iMXxghUJryN2CuNdwp34teOHGGxKw+gIGCq0vkRTzfLYmHaZ5X/22E5ZwRi/PXxQ/",
-	"VdthRBGLbe5pH5bHFavvUBLMTonX4ZPgLTLM8smUjISRA/bzg7X8r+/mU+N7yeePP7R6ZE+982lDHSTy",
-	"bwX3VW0KjGU+ctemA12qPA6fSlha6GvvfB3L0Tit3Kkt6gO93S5Gw8sfK0SvE2uur+80y7xspYG345qT",
-	"StAK+2u7Vs8rF8oGx/OlcCKjNDSVs+9LjjeT0uMohxNjNFtsnRbzdqeOpZmRTma8uECKkLItXlmGtleF",
-	"LM1ZBsIo2eoAjtPzV2xv74uDxzv7LLwTKhIErd3NB3fcXGR3VQkbm7vLcgIsEja78yqWhdN+ra9hjhkZ",
-	"4AJwUfG+Hs8A4t0l0bl06hdLogrjXXkyzOglWCbtD6B611jBQreo9qcnX7N/2GfV4uj+Jexx9/GPf/o/",
-	"/2n3/M6Tfb90srYbn7C93kdMuIDHwNBhDQuXKVl26RdPaGVw3YtKftxImA9xdrcGM8+nO9VS/QYR0V4E",
-	"+nBbeMQ6Jpfb3f7S1r7da26Zf2V9h3+YYzBbO3Lev9KcfQn+RcMteGnnDOSw/JG8Eu1Dbeh99hGYC8Os",
-	"r2DcgxDtY00jaTmGQLt03DB+V7cvia/xvEG7PsHlSHMHEzYJYOvffI+dt+UBhGGXrzWqBfTAeE4J5x+J",
-	"5nE2bu+WmP0mCVjP7xUFVC46vr70IVO97tMn3RaUWzXwG3Hj7o5a6+cq3R8mtSFMdXStFypsba4SBUVO",
-	"pGzGfs0GPfZLNtj78U83RyxthFT43/1PVQBd2lfN9+Dv/R//dPPjv7AtkCi+OPj885397Wa0NI2M/qto",
-	"ik7SqcZdUzPDPT0Po0WfXoUR8bt/qIf9kHReYRmGNk/Qt2PNDCdLaq2IHaFeVh1jqH42Y7ywmmEORvq3",
-	"6Zwytm51sqY29reoju3t/6pdH3ttRC5RRLgbXWii3LqIlnRI3VyfItTrPMc3F0jDatowr1b72dsudQyR",
-	"2pS/Cam87/DXVSHfpAA3Yz9Lu8wuvygDleZKbGB7o+fvZIGjVzc3t1Fu2l1uyhm+2SYrLrEGtnlZyUS3",
-	"YHprAGJ+c3NyRtjBLQ7ahYVvjImrFN6mx5PsckCU8qblbiHPC410lOdV+2i9bErocVdlNDImrnFThwUf",
-	"tRjq04Eo9PUFBiukCUv5QF+J+qO4cYZPqeofpvHg04WmlJ3w6Xv4SYkROoDw3/oC9nohVT1UqbzZ5CJY",
-	"oNLbEgzbTf2LIbWRTWwl3w/PRe9c1Fb/Vp2+NpeBAqAHjktVhT+lQymKQpj24KaJ4OpiQ3dmyJFo0Xao",
-	"YqMeMiOodJKIIn84uery2+Nk5/KWFk2f06nRN3IC49tG8GCrwTDxqBBuY7j/0o3hxgvrcKj7UOFl3uLj",
-	"bE/DukIHJl35CKjzZxIh0eKNWE1iPBfdjMTEKLvqolZ+grXcW01xtlG6dHXIaXiw3btS/dwOCCq+tei3",
-	"fXbCnh48+RXzRb0YGUzsoqVxmTGNMvKFcr7gqS+yKatwvQRJ6FRob29fQLxlsbDPNLpSeCF9DbTEF+Jq",
-	"qWjmc4PX5Ji41WfwcivZUnVUytJCZWzKKcy9xSiAD3gpY1Wls/R3O14K3TkFcu00+77UzidOk+uIcvyf",
-	"9HpLU2Pb3PEwz9dv3rxm9ACG4nZjd9GTRpbbQa81It5JV7RA4XysjWOWnOGByoT7A6O0LtX5onLznpu3",
-	"Z6dBNZjBZucHC7S7NOoQufOlEFNhDv0zh/6GpJ6URtrCamkHfw17jDyGKyyGjYtz+MOaCPImZD3LUL+v",
-	"FT4Ymtjm3IL35678IePs789fvWSv6SXgepoSoHQ+S1i6C2qh3e2Xvd7jTOFfwn/KdFFO/FdpXwFunpx/",
-	"g8bvlJ6Q/tdD/zqfCP84YjKvqwiTQLAazmFfKyF7FtIGNnDCfKvNJUAEJZakDmUr9DXgpwfIWI7G8JEM",
-	"OiKvmOSc5Gd8rUElFknfx7jA7t2t1Qq+SGpZDGas9fAqnHELlO+BYEEI9FLBoODqkmXaGDKjb2+Sydv0",
-	"Pu8s/rYAnLOY983HE9VCE0kDycfl0lQg2kyRTnxk04Z3k+g8RjjlIkN7bcKmRlhMxKHykqIOkArFrLst",
-	"uau3VqGJ6r9UlVQ/sgpNVlm1b0+C+TI8TeKwbVPGXkbezHnb/GaRwNXaqsmiQjZuCXI0lhmFMfi4siqs",
-	"bE2TGQ14XL1Mn8/8EB/qL+5iYLoP4K9nCSaD7YIN+Nvx7IgFkAMV9VBiofI6Vaf0un+dkN1dflatp1Kq",
-	"jRPVTakYt1EW6j0E2t3JQrVOAm3IJ980Z/YOLrSppoLw7W7rDRMBzkpFZQRaJOOwgyVmOQfUDRsexAAI",
-	"q1NxjOcfCHUze7Uu0pXqGc4Ock8nqT+fnH+DSHfXuML1VbXa9LDpOxtEIuqlpvWPIKKb25/Pysjw3JIo",
-	"iCLU+sOFtMZb/XmbBQg2gvkqyFX3dLlrM95DDZykTjRZabkEFKGxPmkez6JkRwR5KkwIdFtfHFqB5eti",
-	"Uqu9Z20ArlWqZKmnYX0MfOBA200N/G1Aq63tCxGsS6B3V6f2HRjkp6SWMfFb9Vblf/wYyla56+fVgZXk",
-	"bhEJhXJmFiMhGqSqKqAb0ceWNT3ZzNVX0c4VlLLe0JLrdSdr6So/YL40knpvGUtbp6pxviQqJ1IrN8mO",
-	"v50z1ZhaTxLtbiU41+tHcA8U76/JbN0G0DYonmeazIdBgDSlsofXRrrI43hoBK+Z0GGdP5RPpFpTzsSJ",
-	"zkplv/Vj0xc0wRmNj18hH7BVOhF+d0wTwXqDwHOPvvQ7pFkuT2N8GCSpj/O2JLclx9ygg58AVxaAektI",
-	"R/RwDN5PijgfC2RU/Be9LUYI5sSNi9w1R0xhBQNndMGyMTc8c8JUMeyOD6g6GBsKXyEq48ZIPsImkKVR",
-	"cyE9+8HctiSm5/f9/k2vtwN/fgF//Ab+OIE/voIv9571+ze/erak+N0bUIjvKJffIaNufblyafgotWxb",
-	"X4lCGtgisKMpoF0rtyIzwnXZOfakQTO3xsLC0jWbceVU83jNkhI0Y1LVP6WN3JpQhUd0N9k1AHE921aM",
-	"cy0WLk2h/tyxa1lgAFFtUjli1L+HW19Y1aEbkj6UuXTMGS6L7sccYC3dHayS7drarywpQEsLaYM53sL4",
-	"VpclHmGMd72dp3xneLzz7N0PX3zYiT8ebPJxb7896O5ta42gY4ZVgkoFV1HnlaNvMtp9jgEo/u/vptPJ",
-	"u/ngwMcrK2X+m51//+6HveTxkvU0qwVt6HXCGkB7u/b3+2lC5WFglPm0FXb+ZcLs1s02+zXLeuyXLNv7",
-	"8U83Lfk7vXWj9/fWfPBSqvz2WC98KoHpcei2i/NNrdnOxSChvdfnLKoZq7OCqSQx5VyGpn5ko2ipIdpI",
-	"+eY2ZGuuKaf51b2mF/2nZ/j+h6QzX0tpQ3aA5Yfa0+GUdq31rWeM18WgyPB7KadTkbcWhFpkBeXkgg/s",
-	"hWkZ/F//+f2/PfvqfV3jMioYEjk07UIsW9tyPqp2wkdFXcdh1tF2kwBuD9u2q/htPHsTOM8Ft26HcoBt",
-	"qJfUDRgKpN1i791QtROR1ZfuIxdxX9URWudf2qNQcSoba41vT7QPS/AttwYzars34UWBtcfLCdPDvuID",
-	"q4sSXZZxvRZ768Gh5EThHrav5gqLYZ/XhbJKc8WzQX3uJJ293Rv68/f7+PeM/vSfLP4Nm1sTxyqwv6Th",
-	"q8+n6up385/35774x/nP8w+cN744xmVhMz+RlUa62TlW4KIEVWz1eFxS6vIcNTr2LS5R+D1k1BaSUewC",
-	"cnQfvNBlyH/tITYM8cqjr1BeaY8YJ9nQHzHKEvS6lDpyUwhS1JK7rQkvHg6VEAPygUuq0X7s3JT6IEo1",
-	"1ItbisJcyH1kGz78UuGVqjtMNKqeVrcKK1TavuKNnxdMxkmo9yBd1fairnpGzSt8gktfUW15qr2MTWdt",
-	"XVBVOt+UwCZsWmhKgb0SxmJHCx+HZxFTfC9Qm7B/OA5+cqrc2xCx+qqvHj2i+pu+ZYdvBMEd9TboPnrE",
-	"op6NvosDFnqN9tJXUR+P0L4jYddjmY0xLbrqIJYbfq1WNvboqxWdPRAGzeYe8M1cg4++anb4wNtHha9X",
-	"tftgc90+2FfY35MOFKaqoVyLIUZMBXe+ZQRQkmCXTxG6v/gFO6nKstm+2qGwIoqroy6iWERQ8UtxkeGs",
-	"b2T49uzZCXv8+PFTtpUSRzlklcaUbid9xWDGt29OmFZMl25aui6rJXO8xOQdheWpEY2KDfOJKtkurOil",
-	"Lw8OP/qyeKdfffXVzq+eHDBiYLZLy/YKDeigM/aSv2QoueM7syNYTmjC3mx+7utzcS+++HrBLb1KsMc4",
-	"W6jYFTUcN1q7bfSJA0dNE4bUnHFmYddKFLgjrwExYnBwY4aggjQ6ulu2lbaJLIeU359ud2EpwUhQDQVA",
-	"ygptAQGAHRZFwixFQlGfjBLgl3GXjeEU1Yxmg7HqRtKw2twXgMGLk+uMaE8FMyJYA3HEsgKL9oHWVNJA",
-	"vpH6SGk8MdwMplvnGt+9xJ7PVmIGB3fCMF8uwzKe5/4NOvpQlqYmf7Yq6mBDVQebhNrJSJbIHwCQwBtY",
-	"37dDtgcs//MDdnx+cnrKCgEag01YLkeAplgroQv0/gL+OIQ/dtKEtsQpFJOaDftX4X7hu2yLxB+W1tc7",
-	"3e6yt0piEVS0jJAZBUaLLCkcEXqIKSweIaO2x6HCALGVviJSmO5e7aXMaBA1FPYA34AHHvvAATTUAHCV",
-	"6Ctt2ERjsVBkkLCQ977Z/Hs0B71nI8PhlN/31fudnZ3qf3gwZqfsfXxW7D16/5FlJWRlQO6Ftef8uzHz",
-	"Ze/Z89MX5xjEPwolM9/Ti8SUK9YSsxQaqcm12XvgLdbx4bB1BOI3NbOxR1WgC1bcA3TyAxP3Z+8Z/kNa",
-	"h9QfFoaiGtIuGLUMlJ4GRzjj4vrqq4bQgB38fed2hLjvIZZPJPE1kt/FjRMK8KKvWmSMQ8b9UY51gUF9",
-	"jx4BPmslHj3yIueE2v9MSN8KO+kraXEJImfiBkRf6QrMnTaCGpH7eja2oh3wdOCuhXACO/v31aupUMev",
-	"T1kQ2ULc0MTXm+b+rtY7B9JYS3OH7Lt3aV9thXEed3uMF4W+tv72EaC0KmZ4DV/BS/sIXXjl9EvgXgpO",
-	"imQtC1TxmE3Waz9O0JOWHfT2jog3yPCtJ+kgPXlI0YLw6cddlu6OsY7NH4FI7GIpHPrnRDgjs9D2YldP",
-	"heJT2Z3xSZH2FTJ5pf0kW2kAHAJiO1AA7OVSoTslc2CvMrYQrr+VLuvMnSYEFN5XqQ9cBpLUElTf0jZ8",
-	"IeAYqLGPOR7o3HMNkFOwxfrT3t7KeGTRHSG7Sncr6XR3v1m9MGVbab/T72AJG3jzeqwLen/7iGY/Of+G",
-	"ZaIoYNq1I5wTlqoUB9zbGXDgi9PxzGK9EbRcb6FMxxj1nmeIGUqwve1gjvIT/Wo3yFSpX04VBY3ruS10",
-	"Ogz3fSnM7BDLU8DaptyND2VOXCalRRye5mIy1U6obLbzWzFLYZGAfJW9diItCJLKx2PHoMeBSLKVNpge",
-	"DDEwS+wr3fVX7UVAD2ZnyvGbxKdwgJrimSmxtSupC0+NgWEd9HpHcVd6afvqOmpYPyhXd6pnWyDoe2d5",
-	"VGE5SBd9BTgHjL5C21C/iTMjsFa0rGHELsUMha6D/X1gcE96PdITgG70VZ9ShRQvCJX6naoHflrnaqRH",
-	"3mYCktgIFuJvsBeJCg1X+KVGag+TecmVrGBVVoi0DXZe6S4kpQWm20z8ANEzBp9WAuXFYGggCQup9qWY",
-	"Op8JXshM+JBvso13QEg0UrhQwZeyN2JtkiJMrPe8d3vdno+6ABrVOew87va6j8k2PEbFO1A5+PdItBlx",
-	"lb0GOWa/14NbV4iQv5EJa5FoFfJKdNlLlFMC5etW4VpSq9O8c9j5O+G+9lPN+cj2ez2f7ulCG9GI4v3B",
-	"h7zSRb3NOOXLn6HqPbcPXCZA4wnN1zZMta7dUKCUum7FVovO4Xfv0L5FlSI7z+WVUAKNlA4zOr+rd27J",
-	"4BF4xlIgvzYa7r8oLTnoxM1U+yB4Urzm4XtEj2DKCTJPkCOB+7hrbS7JluVDaCxzprSO7tTCmbzwK7v1",
-	"TGBdu9OCy7nTmLdCLwDez/AQoI/ANqn2sfQQYk699CTejAULwkqlFEVU4ppbNihlQRXd17r2frjNrn1Y",
-	"5AaAjpcOclZYfsL+8fjF84eA/5tYdVwFehKf1qQx3ridc8eBnzPufw3GFs+ygF+WxuAGn/Qe91Vtf58/",
-	"lfarf0aL+otQI5wbWzQI8xFkCd56fPtb58SV3yp+xSW5AVYdKzXeuYWkXe3t1oGrraf66BGaYw8fPZq3",
-	"wC6octoE1QWZKkXeMCUwz2sojcWq6rkw1HknjaLdUrRUeFHWs33FBrO+SmUe/9hlz2SBKnmmJwMQAVFW",
-	"On755RFLAZlRMMW+y1Z6g1vqdNpXVbHOhA20GwOtbaygy35L/QCnfORb7xxSPV1ileJK6tL21ZSPxGeW",
-	"pVGN+5Rxi9DAf/vMWkH9X4a03KO5F0AWa6+6z45DR0JpmcZOhUcoazStYbkgZ6w2feVCt+0Jzz1AEI3C",
-	"5AnpQ702FHourTsJ0cCVrGzRdQ9cooOScIghOGzGK66HQLGX/0PSPmwdLHN/Y1Yxlvc3ZJV+ut6QjSDk",
-	"ZWNGwcRrDRrFKC9UV+OmkIBtjZud1PiAka4tawDMaSxgneCaxfmfc9cye4V5y2Z3+h7mfs1Hgln5x6Wz",
-	"hFqD9UTen9A5fNKLsiX3GwmSLdkfi3MD027id5VuTWSjaqjRtrCqUcbal8oiS3/3gEyvboHSwvdeKYEb",
-	"gl0SD0Ded7AO7/sNr0q94St7t7/yVnFvNxU5vbQGt3ymzUDmucBogIP9p7e/8UbrF1zN/OrsX4ibV/z7",
-	"hErcSOsbUQce7vn1u6SzYGzEgNu1YmybzH/3B5l/eAAJACPbSP8eStdlp8SlKt+fVplIan7pG0ECVuRM",
-	"qr5Km716fDNZab27xoiq4G67bEjJKwtsre1g6kfo6p9+2Xl4/Fom//suLz9tlOod3P7GS+2e6VLlf604",
-	"eBxyaUNbIfSge0c8po+EtlQPjZ276ANZC0dX42QwdWUgiedMXIFqzAe6dFEYWFDSTKkSpou8EuC9QyFy",
-	"yKDxaDoVKt/RqpitwsRj3MJPEh1xac/1Uo0cwWR/RsmfAEpGVw9dV5kn8gEDPTItw8ANUG5aaNedUjTb",
-	"Q3BGUA9hDtQecTJ7NQImZxlnr1/+HZMTkBpXYNTrQrvXL//uIXEK17DrodAiow+k4iSfrGPZwl3+jEV/",
-	"cSyCixOhT8LoFj04Fwu3/AFQ6rwK06zbS4eiNGzCzaXIt5MQBodNl2nnGA9X1cXsqwFXOQmavOpkxqZc",
-	"iYJhYUZkgYSalaOIk8EfXTl9pfhEqlEYv4rfi2IDYXSv9t+G3ufffAL0tlejX97cyVT9M0L/RBGa7s3D",
-	"I3Qd34Ol1rTdBKnncfh0IRAV9lROmdNsr4f+Yh81FkXA+g1jPAQI6n3F50tsEjZnLd16uGNp/X3KtrxN",
-	"iGJIQ3DtdpctuJS77HUU28SjDiXV6riahcBPNNGOkbOjDnE95s5H8dhQ/U+bQBSOGkkqfYX9+izarYk0",
-	"pViEM2WWz4Jrm0ImCwwWK52VuS9e5YOKRd5XWIINpkFCxjipL97i7NUcCpDELv11pLCfB933fXXQe9pG",
-	"tSinLwLKR9ItRKzf6Hx2b1L+YlXxD83sB0zdekA1o6WI9xLzmo+jxtByvPNYVy2EL/iaav+fkd3eGmT3",
-	"RKth4UtwH+ytsabXfFZonr/R+jk3I0HvPVkHALacUlO4FyKX/M2McgIP9vfXedmHVgCl/ko56WZ/tWbI",
-	"ucbowxDrE1s9Yi6wJo9ZwVNMVcrvdnayWiZ8oa9QOiPyhvkC801OgbWkoXMpDRCal2JwYF+RrYTcgHWV",
-	"QCrj5lOCqLJfW/opo/pzUo0ww2NVZTYfJMxhATB2yrYO9vcroqyV2O6y4wZDwVKYrNBqJMziztDp9/Sw",
-	"pYtrX51h3reNbT6YWqL0NTFP20biqYzCfZhV75+4N6v5fWLCvtSce1aVjPyZWP9MrB/cOLYQGn/f9rGo",
-	"P9St+vucvasg53DVuUwPKTC/ChodzND3syxK4YWf+gHROGqbtUTf9fv/2d95/3e3KKJEoeZdiWWNqJVY",
-	"6wXmVXGf26WH6IZSL3TsT0vVMaIee3td9lpbqvGuKA8N/o0PU6YRKHq5HA6FQfUSJQ1Qn+bvfBiaOnne",
-	"RL9s7ff2to/6SmAIh6m3DuzYp3L6lGNk17FUUg0i0cHaV97CBWurly5ueOaKmQ83aqzrM1vVBUXdta/C",
-	"QpVXe0nOIZkBdMP9Xm+7y96MjbBjXeSWFWLoGMopw75K62TUFHMpI//uZ7bK4wy5nY2KDHasr3ELRUHl",
-	"SJlvuxYlOlK9DdyfBN3XB6aDvLS9XDV9EeKBHkL8aHax+8TiR+jCt0izKKgp40WIk587+aPqhBuNJD8k",
-	"nX0iVQ+8PkI7f37aNDpLUpoFAuu5zpY0EHrN3ThE2wRGkkacavcHuDYfsDBJ80CSVbbOn7i09rPw9RPU",
-	"lBF5KmqErRo4Xu9Y5KESDZsys6b05e/0PQhhSSj/oqvAm8EMFFD6OV2eb0CUtC1gdMrduA5uq9qhLkO9",
-	"TUIy52mHnYpMDmUWkbOIxs11628LvYtKFtcrWhn79+4vQsZr0fNnZ8tfHtNfqXAad0dlU67tMYnSthd8",
-	"nlh1JJRx34qKitT9OLzPZBtluKHERN2oJnVfhRS/KhCvqiniUzMiciEVxaIbrizPKEies/3eXl9NBFc2",
-	"yrX2icghq5n6ApDtS0W1IijHdVA6+i3Yt+osSi/MaoMVqyzbggVgJYGE8aKI2rWJ70teJMxpzYbiuq+o",
-	"3MA2+WxkUXjPTRLKA/gKWLFVrunvOGSGX/dVzh2vww7d2GDhuWs+67LTOEeXbR3c3GyHWjBesMKDOisL",
-	"YdlAzLRPafTpLyixHsbJlZPShlIXFGAGHwGm9TmFGmalOgoiMICkcjRz33Cz4ANRYHAWNxaDLftqyyx0",
-	"bGEjTYnAaQXJlC6Lu9ahZIOvCWHHcGQcK7XUZuEjf8eYzBvyeVzxnHKmf8GipNm+Ohcqx2IMzTxap9kE",
-	"lAYjHLrXLR8KSs+gMieAGnVZqKjDgvV5XhNc/qWYUpVM7lghuHVs/4CNdWks+fCrDl+gbaiRMFMjlQuJ",
-	"zedfH+/sP/kcy1o42+ibQEEDyEp8CZQQMddXhl9T6vVg5gSVxzgHPfFSzJKQEVLNlVBUXeXXCXn7OV2J",
-	"R4+oXzDHchThdB49ovRVUMaCsxHVx7nME1wFOguD9OyrvVB2cQz1MzEt+AynNaVIsZ6oFRlcVkDa2ufZ",
-	"3E7QeF28p0PM740fjDJOm9ut8FIqNizkaOwOfZYeTn3NEaIMzxBUW7rrLuru5uREoMcypAwZ3AnoqCja",
-	"jIRDIziMskX7PhPOzHaOh06YdJtJON06q2YolbRjNORLtETtAN0Kk8EV8zQDMB0meAIIX72OLZLhblyK",
-	"WXXjT86/YVspZl5m9ird7ivgZY36G+IG5Gd4ssuocuEJXbcdEKYPWfVyQHy4sz4V3lduyfRE1M216G7W",
-	"0hlLibykCUvribGKViMLayswLiIAaUg/TdmWnlKNm+0j72VP5wUdWB3Q0GhapGYD4aUwtnXQ621Xsihe",
-	"UGnZ2zfPdr5gW0C2qO0VoM4O+jgxcAczurBMTb6dYCWDg70ven215bfum2RhT77c3+5+Jz1iz5/BEZ2c",
-	"PX9G1QKEyu12lz2XSlhP7/FC9lVV6gXdMb9Igz+fjgfDB4DwhFKB1IALKw7EP3RpX3TJKQML5/UUhQ6s",
-	"y06w8IGtDJ7UMkvNyK3ry7pQdQSsieJ7/LyvoxqMvoaPRHTxw1y9l6rmy6VUWK9lJix7z9IwQoof8P00",
-	"lE8hQl0/HNhN1BC8/Ut8HflE/TJxoMarVOTAF4Fp1pQIbyk9AWo33wv1z//031lvboSqzEP1sm7vobb8",
-	"BxyHgHAhESRK17PUPG1up6Fu+8ILcz2LEyrsI1iPbdEjJCHtbVOxmR1Gjn5aDfBKo6+7rGqpFqoOTdEm",
-	"Az/aJoXHWhTVsSG++lOIBUEysSEiBgopuGsO0jyO7aAUIhuZmyGC15aXLKNaFjjN3AwRxLa77Exf0z1n",
-	"vk4C47buvQsjUXADwIf6FSEexPP6nqWyruugZogF0jLuj61Rkqy0gqVdzNLMRSYnvGDY7hBLVwS6hkRY",
-	"IZVK97pPxM7jdDthSlPNLV1arnLLrADq5jRmdL7kL4GgnqphWtWqKOSliMtFUTgvFbmqIIKBOBZdrgrL",
-	"gnhOg2VTmnmeQGQxxxjj8fX1Z5YBTleUFW8Wva7i6jl56UGaBxASqeGh7E4NQ/rdV00DOHrxuGbvquqS",
-	"XNUJ4yqiad7WAcQOxvAOaXzooPf0c5KFoqIbKPcmzPec3KQPJkMVqO15LJZCdwZhTKkZAGOsu0Jw3Prz",
-	"P/03iiSrpF+q3ugJK5EtbbCYmI+7gVee9HpeEqbPcTAazXvuS7CANuArPAqvmoEAgLwOazxgDJjSaodo",
-	"AsmPvmYhYwWfoTwz0NRyEPURsspElVk+szgo5QCbyDmAde+MLw1EtRdZCCLAMk8EuG63mwboU1bIDe7l",
-	"sK/SNO2rX3iJhCaOaOd0rJ1G3r6zx7Y8g1xkhNt9BZc0CSoJaWtNqh4IeFJhdhLoBAa84YEkSsLzInm+",
-	"l/S6T5Jet7fX20+SlU/0nn7R/sR+stftwRP7vSftTzxO9umJg709fILuQPg9wZef9JJvd3q9g/0lD+w9",
-	"fkwPPE72PUCXeCTOSrVxHEUkt/9WzDqLZjG4GXjTtur2gGOhtknp8WomOlqXGMU+Mm96k9VEV6vms8vW",
-	"dQ+p5+uubaE9YJCSk6qc5rJVzvXw+cis5nqJlfwNq9PAQnwj/QCUZQuKGq6tB7S6bdODxeqUUQRm0gnq",
-	"TXOARUAg/6aCljmRyNu7Sa/hh9u7z32FzhZLjLjYG9Nn11GoBdFNypLdAqnR02rjdfK+WjCQJOxa1C95",
-	"1hBMBUFd9Y7QyInWpvG3FGpGE0Co4CJt0F78bJWfVg/RGV65q0lHbpogQA1ex+9WFW7/kKzp6kO3Sqm8",
-	"r8+UimIHf3bz/ezme+hMC22xhLBH5CHWAg3IHMdZlauCYeO2WC2egQ0y8pd7BwK9CYEfVZfbQ1xxEN0p",
-	"qqS2LXiFFGNfg4nBf+etb6S/GZEJeSV8slQNg2WFmu4g65yV6qEzf2FZy2n1z962n0ISfqOh9H2gGNX8",
-	"Xc/9FqcnWVtiPLnhKteTUB62ci/s7X/BBtLZ7ZoNYp9EXz7YJ89TrycqU0UctuapqpgdNSp8kysJJUDA",
-	"MO+U6Ksxt2PEO/JJFXpkmXTLY5/e+E5QDyHNNdpFfWKJq9FNbAke4zEldREHfwDUPwp00p86lv/M1h+e",
-	"yiBuh1rdEY3xpGJNrz49XXHvXBSirQ/REvpyhhWvbdzkTLqm2ay3t117eXwEqc8Jw0jJqmkHWuQKLNnY",
-	"Vkn7oI1UfInLDaTi9tgemd85sse3pl7k7AeL0CKw/Bz58hPAEjqKj0CTZsHKZsug797BffAjzl+C08XO",
-	"Oq3tdNhW1F1iuxuFepXYqH2hn6YvBjDfe8dirQBp4mo/2JGg2yjcBjL/4qBL8pg9ZjbsoPF4cRrd4qBz",
-	"PXjiHoeNeDZx3fIyxVBjIHBofhBkFGmi3kEMWwdJES8rRDa1jPr61PdP6MbV/PAqtFQH9DWWQ3AS/tOX",
-	"/PX+k6gSbXfegkVgeffh/wUAAP//",
+	"7L3dchtJti72KmnOmRDZUwRBiuppkTERh0NJe7hHf0NK3fu4oY1KVCWIHBYyocwskpiWHHb4xvvWN36A",
+	"c/wAPhGOCYfvxvfHz+B5EkeulZmVVSiABf6oe3aoI1oSgKr8z/W/vvXTRianMymYMHrj4KeNCaM5U/DP",
+	"U2bU/GhsmLKfcqYzxWeGS7FxsHHGMilyTYwkV5QbMmJjqRhR9hUuznsbyYZiH0uuWL5xYFTJkg2dTdiU",
+	"2qamXPBpOd046CcbZj5jGwcbXBh2ztTG58+fk40ZVXTKjBvGcaku2cmzxTG8mzCS2R8facJz2yW3X8+o",
+	"mWwkG4JOoeF85VD+g2LjjYONX+1Uq7CDv+qd9+9Pnm3Y8ZzkbDqThols/kc2XxzIEckKzoTZziZSM0Eu",
+	"2JxsUmLfJ1wTSs6lzEk2kTxjW8RMqCFTesHsL3bBOMsHwg6RaUM0HbNDohkjZsKInDFFbS+PNIn67A2E",
+	"ny3uVzXfaKzbdrC1dafXL5k4N5ONg9297xK7D+GzXXVjmLJt/uuPR9v/Pd3+S3/7aW94sP3hp91kd++7",
+	"z/9hI2yXNoqLc1wcoY0qp0yY9h3i4XfCcyYMH3OmEkI1mUltWE6uuJkQbjRRpdDLdrHq5La7eRI6h2Gf",
+	"lmLZmVKleNgT9dm+r2dSaAYn/Pc0P8Xtt58yKYxbTTqbFTyDA7AzU3JUsOlv/qztQH/q2ONbfAs7rU/1",
+	"FS3GUk1ZTvRcGHqdkCslxTmxW0ykIpRc0qJkRJZG8xzPIzZ7QKb+3YH457M3rxNCCR4JcjVhihFKRDkd",
+	"MUVGrJDiXCeEClKKCyGvBBlzVuT2FXfiiFQDoag4Z+SSy4IaBr9+LJmak0AL8N7kkmkipCF2aeb2HnxO",
+	"No6lGBc8+6KrBweFaVmqzNIfbahhZCzViFuqCD/ihd6kSKSIYpecXbGc0EIxms8TQgcCf7JXQJaGUDLm",
+	"JgGygC/D3YCFp1Nm74+/20BjtOFFQbgY2OmfT8yWW48XMIyciS+9IEZeMEEKml1owi7t9ulMzhgpONx0",
+	"Lkh6ve2vzjb8ptPeBlARexJo8Vwpqb7ksH3HhNmee8ROYyTzOdF0rokUxZwMgDtVDw02CBV5bZMtsfic",
+	"bLyW5oUsRf6l191Spjwcx+qSsGuuDYzsLZ0XkubvpHxJ1Tn70gOEFWXXGWPudmimLpl6pEkmxZifl4rl",
+	"pOBTjqM9Y+qSZ+y9oJeUF3RUfPEB59TQEdWMZFTYlRzZvabZhOVEyKvE0kc/DZ4xy+X1pDTGUsBcXgnL",
+	"OpqS1HYQpdrG5Z7eiYQuGNo7KV9RMXf8Qf8sN/qRDgddWTLHNZGXTAHTdpt2X9N9L2hpJlLxv7Aveote",
+	"ca25OE8qzpYEfiWVpd3yguVkxKiyrMiuSmPSP/zww/ZRaSZWysioYYuyRfp7eDtFqk4FSYGcpIQao/io",
+	"NIxsnr44Jt/+9kl/a7UE3RTDcOlmSmZMa3tfngvDzfxLruAPrCi2nUDBxaw0yLBHitELkHTLghE5jq/N",
+	"oVsBnQIF08TesIGQ4zETub1KIClUxLYsmONw74UuZzOpDMtfsZzTd7AeX5r7w5V4pMkx9rptR2EvhyUY",
+	"UjQkeEKzjM2M7oH46fqwQziC76nI2IldNhh7nnP7Di3eKtuA4VZQHNNCs+ZIqreJmSimJ7LI9SGsJIyh",
+	"YGNjRThiQOOwQ2LinAsGGsWYloUhm3qCcllRIJeWAh6cMjORORzFWTSOnzZGNLsYZrTIhoW8GhpZMGVH",
+	"MJyhDMaus6LU/JK98ooenl97OqjZONjIZWlpemI1Enxgt99P2vRCFCPtlld9TrkYzqjWw7GiGS7DTyvb",
+	"7tzyl5nJRE6lzlhOteEZN/MhLWaTG0/jETz0OUFhxG76mu9ZsWwox8MxX/fNKRU5NVK1qL7HE2aFvSur",
+	"+JIx5UWp8G88apdM5Twzh3gVzIQpTajVD/JLrqWag4pl2FTfNBbo57VVwGA81yf40m61vlQpatXdUvCP",
+	"JXO/291yE2DF2rO+Hir9sEfBHuWCXbJCO/0cH30Sv7e3aCTBF9VQfyypQkZ5h/MvS1NwpoaZlBd6mD/Y",
+	"ZH0/2pSgizsW/yB9qVLoNff7kik+dhxjkRLUj/2nXz/7ZBXk6BWrAoqcqpxsnhx/v3N8/P0WmdI5sbSV",
+	"0HPKhdUTjB4IIafcKhOgXvfIM0eF9/oJoVYSIu/PyPO3R+Tsh+3v9r8lr4AKk+/6/f6zgchowUeOo8Td",
+	"4xUr6EgquKqPtCPfRDOjQVSzcikYjh5gxT+Hb+TozywzdkEr1vRWFjybr8nZnoMCGZia5UtjqTKWeL6l",
+	"K461NotanOrdGc46jKXD28vZRIeXW5hEh7daWUSH92oMYn16XqPgLeS60whqxLrLGzXSeysK24WSrvFW",
+	"gy52eLNO5Tq8sA6NszIu0rmikFcst7evneJpsplHRGw5+QJR8sZhfo41nx/jjWocjbYDu/TeLL+OyUpi",
+	"sZoQNM9J/SQu3sPanrVv/eIxii/Yyj380EaF/fFo+iw0PxfQkNUdYIHbdyfwgH7vScwDev1+f7fljB0J",
+	"WsxR/11J7ev0Go3r3U34IOiZGw3u9pnmgYKu3PutK1bm3Dy/9Hpk9zlUzKGhGltF+IpqkkvBEsJ65z2S",
+	"qlL0MsWoYXmakBQMwb0xN7XPdDZT8jL+RjE7TJanvUVvTGJHIFu8dZbQet0bbbSgm1PbUHs7DSpKDds2",
+	"fMrans2Zobxopx8zqgzPyoIqnRAusqIEvZ56Y7gC0xLVUvRanUvxtlF7n3CCyUa4fq73pfv4Up6vuYvs",
+	"0vtCO3Gy6LQssLLGDFzLbWM9pqUdnl5yeNDWrC2F5RoMImhmOHBWBbjDXsiMTKqOLA9EprhhilMyVnJK",
+	"ZuWo4HrCcnJe8ty+3CI+0ixTLOcGCE0yEIqdl4X9Efp3wuXZm7dgWSAzxTKWM2gKN5eM5uDFoYW9sjmZ",
+	"MaWlGIjgKi4Y1cy5Mv1KL5yuKRde11sUFECKWHN77RaWBllsfaVf2MfJ1YSh9SOzjZNMlkVOnAnYvwur",
+	"JUhqeQHLU7sZ0BesTIpHMkUPwtVkHh3tkZQFo6J+bRbmDDbV9gsVicNwFOyILOMBm+IhEWVRNGcwofao",
+	"CPDpXVG0TvmJtFN82woa3VEvWC3vNY8rs2p+ZD9yvm4zscOFEeUs8w7FYCAA48AV18xNLLYQLC5eF25R",
+	"EzFxp6LVjhpDr0nrVBQLlke8daaymmVyyuA6tVJQbe+NlUCW7CP4+v0zdmumjGq4s6AWxlt55w1r53/V",
+	"CP2JC8uUVLekLnu4pVpJdqt1bwuUgAPgWFFEu2agIR6QtJL2LM9DcS9NBiKNRD37S1PKs98FQc3SKS6F",
+	"/S6IZtCIYvaXSzb0ousQTfAJSYOkBm8xzfOSFkMrrdkvnEimU6dBCysCtcqmdam0RR6NJUo3UCsWRiLk",
+	"klHG4iQ8FY2xkhpj/uKOY7JxvW1HvH1JFRja7dBhm15x8dIPH7/wc4BPL2l28Wb8AqYBX/xhcS7w/e9p",
+	"dnFcmw98fXoW5oSf3cTO3Lyeu2nBjyfR3NzTOMFTnB989yZMEv3+GRMGrSFtp81bWrL4QSuI4PFDQfWR",
+	"JlYUvEH43e1H/91gfDq2DBh4Ycvlv5LbmucsRzYNT6H0bW8F7O8lLXRC+r0nxEjS7z19+vRGwfzp06c1",
+	"0fxJ26hKpduEwzcz+rFk5ILNNTMkg6fI5ohq9u1+qYoQnDCzTFacgw4XRRI92d3rFEk03P7wm//QRikh",
+	"vmtdrwdBSRlDK3rkB8/yFKN2kLrOt93DVuQtCksHMsnGY55xyzDs9a5fNJ0iI8/kJVXc0qcUrNZsOjPz",
+	"xPYzELiuGgVpwWzrtht4zpLjhKSOt4F4kI6tSJC4dsFoDgLCQFgBAWhKU5dAgj2kppUzuemWAni6f7p+",
+	"UFZJ7bTS0hZ+yyJhdCWH9c/Zd2BO69l/2mw/8c4sTvxEkKnMWbHNPpZog5AqZ+qAFFwwqsiPo35CRrsf",
+	"EvfFUCp+zgX5Eb77WNLc0oDMP5eQ0d6Hmg+im6nJSaSP24a//Ooft1x4u4kjeyjs/3IchItACDpZTGy/",
+	"/qi29et/I1NqFL/2HcdrnRD9t/+6+S//3//5P/7wL1t//5/+77/9XwlR8kpbYhk9h+tdW7J7W7vVC4uq",
+	"8urr4KKpqA43XuREG7nWzcjHiz14VkRydq4Y03YFx4qxXE4TIsjf/5f/lcwiMTAyI6KzdXjJlG5lUhDE",
+	"Gtn08XkkK14Ig7lBZBiaDuD5nd1ev9dvNwM4Az/2t+oaPg8Pfk42eN4tfjGJwzFb9ZdgVq3P9ZkVN0Vm",
+	"8Phrz4fHyHxXRQU7CfVGsvISn7KHCXSPdpUSfhpaLXX5njjdxT/Ufrwsa6wNfbfVV2cp1k0jfwUPWdWm",
+	"7fQ5plYtGNmEPbZyhBTMK3WlMAz99asXcyZ5K3lFl0twZDlmmvjpSkV8rwk5V7Kcsdxq+UjNuEA2pHlF",
+	"mLv7d+3SvrXDamMKNTt8M+yEn09AEoiJlCWkhikr/cFgNksUAJ0Vu8Yctm6pBEPE6k3zOoWHPkfSus5X",
+	"kJew9Dm75M7Ivjnfud5KfEzGf/vPV+R3RJArmDfRGS3YbScAZpobZ4BPueftXRhKoJC0KN6MNw5+7EIy",
+	"PjQFuLeKadgpQagggV6F+5ZEF46j8VQxdwxR50b3x7A70WrIeC05DX7x8YElXBJMqQtn+668zyrjZbdb",
+	"coaPRhbw+jTeH79/RTKZB4tvpefU9KCg9SwQSC8uDDtRru/d04GCObn3xvfcY5+TDTzMw4yKnFve3GYG",
+	"5WZCUloamSYutjg8/kgTnUnFDlFCr2xJnckPUpFj32AbDfJjlOKSiXaF8w/yyt1LjHKBy5k7ri3sCSm4",
+	"tuxcEl1O7V/CJ86kEX1o5+nYsP3Q+e79EF5ZvIDvfDQ/I6Ud0yZE6AhGXA4LWJ5wvd3tg2g3YC/xaIbh",
+	"h3sfV2RCpPoCSTd0/hem5HBCRV645VjcBvtI/bhrjON0aRfkiimr886Ms4grmZcZF+eEizEX3DC/k/5Q",
+	"OVOcYIQqiUdrtb8C80SQRAV5ZFH6SOrJLV4vc7fbSw/x/revftstaju1zeVrqFyLdLKmXNQZGQjLdduV",
+	"7SBYxCJtKAgdQVUMMp1npRXlCPQwqenBNS0gUlMXpOxWsySkkYkX0tl61/HrLTHGTyWkNeHhpCNZmu5a",
+	"xohq3urtmTtLObI+HYW9cEGupMp1K3m4lc7uLS8385xyOqVqjrrFjCumlyti3Mr39JJpHLcVEKub/EgT",
+	"Z7Yi9DxYuZ2FSQq2dAGXSDOR0kG1Gca+8e706Pv4rXaSVFCw2NfCH6jVhgMBpyatG+1xMvVxN2kE7oA/",
+	"DQn6OKMVbptWtNdLz/lLrtd1Xt/6AK1h9GkcpSaLFezaDLMlZko0X3qZxj5KZtURctKxXS34unfzkWnb",
+	"CrsH8Si6rDVqLevZL98ItqBmVYmQOafnQmrDM31IaPQRvL7hiHHTyPQhm0KinUAqIiRRUhrQd0Y0u9iO",
+	"/A3uATSO9+ER73NA4XdVzHcJGXqt5q1IuLSTgn6RvwZp/pa6StY09XeyiUH4DNfG28Vu0bFXeNtdh6iR",
+	"3LJpYJNLDSiKnt92zMF/BHvZHt212+//7a+bjU0FQ1Ztqbd2ah9vrWmizHDr+aDU1nHfo2CqYdxze+Jf",
+	"MSf+BY1JdPDCLWeK8tYyM0VTiQcF4ZD08T77o3YfPl48W817Ey1lGGo4xNE2LVnD6GAu3K5kgUC0nsPo",
+	"Qi0lqGdBF25aSSCsBFJte+SICHZViUnpDHOGhmjVSA9DkBFEZ1hK14sct/WnLed1kVYwbAyx6upIrcb8",
+	"Fls99Y1GPx1V7UffnoauwuQde1w38qzmLboHF1DN3N6tvTHlBcuHlSdoMQitMqpg3gjmdHN01M2o1mQz",
+	"hBtADrqLAtnqrQwSagoS92bJXs+KfJ9m4BtCj2+mmevaxm5vflq0H93SAOS0+Y6mgy+nbsf6bYuKWj/3",
+	"K1TWNor3jBdluzXJ/0LGEPQIiAfcKpqQI8KFU3bJpmKYCUl+58gh4jb8P/8byV0TW4dkF3kMHWkmQE29",
+	"XRJIh+iH57HzaQ2Z+CaTcK/FR+6iXe8Uv7raGeKFcwwucM4gx8N0jSqtQa6XS36KYdYqa0tKWMLjq3fa",
+	"DtiCL4WKczbEoFsIvL5Jsa4ebfmp5hHoBKYTzyB+PzIQuR4bY42Cf9uvUjh43TSyJVvSPQC9tleL+p0/",
+	"OY7jQQcJ2d0eUY1ZtgveskNn2G57s3l9a5dytQey9disXMAIjWaNJawuUidrQGO7ah6SJ25Oy0N/m8e4",
+	"m6XnHbs2LRYetLoxgiA0mLWnuLgg1JCRNBPCRK4PiV/FKsK2kFdMGwgzmPDzif23821TxdyrQaqv3aX7",
+	"Ga93DEN0UtVRY8ebF6tt7//AaGEma+54JTZ4uVpeYDf5vKP0jP2++eOGH8Ipvtycg+uqbejRrWyLAXS5",
+	"D1REUFSJd4olzi6Z+JAcRTSdztCnGkW5fbvfKcjtQxM5q598+/hza9hbhZv1VjErUtz63kVyfHfidYNN",
+	"GxO6nXblLNBWkSo1yw+JkFdNetSN19bDo1bKmtWTVj6FPelOW6olPYM3m1njN5CXZuZJEBL9OFqPoQvZ",
+	"WlPsiaLCfNBX5XmOTS8Y5JiOZCnyOOkgIWkhr1zIoqVCaQhCbLHi4dvt1iz78l1tWV2yTOXVrXpp8jFp",
+	"VWwYcxJkIT+/tg16SQ3D49ANaOM2AZl4QMBj6gP6MbXG3giiWMb4pWcg616eW93zPNIvVr0V9JBO6nNT",
+	"EIrA7FbHkvgHW7W36p5VLbZuZIgFW+OePWOGZei3ETn5WFKYgHPloCcywWDHZoyEBuSqmSFpprjhGS2G",
+	"oGGlZJMGj/LWqoyNhqfFt5Ktjl8/OXtDdne/23+8vUf8Ox6Tz3tBTDO2/XqY3dbEXpvcbYbj1yIh81uP",
+	"Ylk24R/kle1jjo57v7jgyLiazO2K95YkJ+KuD5ckVcWzckI0wZfsMHF+dlVvmypVyBZXycnxH8if9kgY",
+	"HJ6/hDzuPf7bX//f/3nn7NadfVzaWduJT8hu/w4dLhBke4ntGBYOU7Ls0C/u0MrcolfBHrcW5fZpRjfm",
+	"cjYRKyqqu0ZCqKNin2+KDu/iwro56pnryi5h2Y57ZQ2ZzPUxmndOHHav1Htfcv+i5hYsLI3AGjv8c37J",
+	"2pua0ushCKRDes6GE1m2xfC9DjQY/bkkl84/OuPqts7HNQN4XerboqHJ+RxwZEMuhmMfjLIoi3W3K9+D",
+	"7dRlBEZG0nhV242itdiecEmS+LYtn3L7bjbje6qDuZwW3CLSATW+7hfaEZ2bsrt9s8vHekv17hbkCwXc",
+	"O1KvmsJ0gzmmTtm6GTdiFe/DoriGiTD93tMnvRZKcrPVpCPFsIJFIcW5s6vHRjmP3KsNnVeBWFb9RfZ5",
+	"Dyb173773f6NIGG3Ij/dxfcVdKk9t5uCq46Lc7c+CCZxRQHEG32uUzonIxYHcXsjQoCKgcO+1Z7ffX80",
+	"rY10hUvRelX9ajfAOzFnICVz8jsy6pPfkNHu3/56fUjSWjKB+939FBLO0oGov2f/3vvbX6//9l/JphVB",
+	"v9v/9tvtva16djG2DIGSURcbyUZot6ORDeb00rcWfXrjW4Tv/lQ1+znZeAPIlW2hWD9MJFEUFd7KpnYI",
+	"JrZwsjzO/ZzQQksCmAXpf0wbdrWuOPR1w9p/BMva7t5v201rdzWo/WNaqVbZpuIVqWJpbmdjvJ/Q01Up",
+	"0mj6qudKlnpZYMyi0Awkv7vzG5+/lQscX13f341YLrc5KafwZptyscQd3xbmOGyYW5zvu7YQzck1JD4/",
+	"gxsiJBcGvvZNXGUhqYccIgO3RCmvu84XcFGAIyEuShUk6ZQZvB63tV5E1rYOJ3Vc0PMWkSQdsUJeDcEb",
+	"lSYkpSN5yaqP7NooOsNCCQB7AU8XEiEu/KeP9ifBziECC/4th3aulr+HpkrhDKZDb3tOewNxBhmz3pbp",
+	"droi5RlVag7twUKC5XkgUiHN0BsZ7CKlZFMzRlKkbbj96dZNeD/toTwLj/HI2L5S0vHPRe8Mq6ieVhtT",
+	"ZYe3CqkcGcpFSONJx5wVBVPtSTpTRsVwzXBF78RrU2ahhoYck+BqjjJYKIbi5TcnoDZgRBadZLOZktd8",
+	"atvXtSS4Vk+Ehyn1hz2K4rcXimkDTd2HSYnnLTGM7agolxCgiDcqWtTmnkR3dPFErKZgjkmvR8H+kezv",
+	"q63uHg59MS7zxTF5uv/kt8TBrBM04OlFy/cy4y4C5IHfEUrQuLInPKSdJUChZ0w6z+xixvuSnM4XEkKl",
+	"aMEdKn3ioNFbMOYdVFdHhgxTfWFfbiVbooo6XwodT2YU88dbAmvgASfErMKeT/9l2wm52yeWGxhJPpbS",
+	"OBwzDA1DyL0n/f5SpKq2cFvbzx/evXtL8AFIKa1Fnjypgc7s91tTzQ03RcsqnE2kMkRjsKunMv782FZa",
+	"h2oczH/Tx//+9MRrHnMfrBU35ml3qcQB8KwLxmZMHbhnDtwJSR0pjZSR1cIU/OrnGEUErrBg1w7OwU8d",
+	"L8g7D0LGfUWF3tJQtrYwCPt+48gfEEr++ezNa/IWX7JcTyIeicznCUl3rNapdwZlv/84E/AXc58yWZRT",
+	"91U6EPZuHp99D86YFJ/g7tcD9zqdMvc43GRa1XVCgWD1Ovt5rVzZU5+Pv4ZT8AepLuyKgECUVKkqLq7H",
+	"LYgP7UFLnJWMHAdqCJbKVX/AzK/6zt7Ft37v/vLW5UM8RqvbtNUumSmJxmFapORqwovYuFOz/RySFLEd",
+	"UQiUENlgCNcD4YPsgdwKWU+nwzBan09XOdMPSWr5wYQVeToQDSEeWATG0CeuhYSUYswN+u+kIrqcMaVZ",
+	"7ryFdCA6ddvz0/BRZgHQkWeTup0mWhvMenCT30g2/Mg7GmrcJrytNei+PI3bdd/9EJqHHazkzsVwxKgO",
+	"n48v3HRWOq8lOLluVFBxQTKpFDrmttaBRqtHI24v/rZwvE9j6aWZ8VGJvSjPJXeDGQlLtJ6lBQZZFrcD",
+	"BV5hOVknTDmjZdvWRjjCAGSGRqAezWuYwZASEz7H5z8Foo3fh5jrduWmQw7ezUEGa9pmLjhWU/NXzfmE",
+	"HLNlw2xiKXf36xV28Tg0FH0JxO/YN2kZql06WWowiqzh2qgR0yUgB1AxEMmO4yNj2AqHCd2SPHxDLDYS",
+	"qzDS7uPz1hy3L2FbuTDf7reiWq2ZXQKHcrhEldesJWjhrXT320MeMZYfEi7s6gB8g9UQMFoaUJVrJGr5",
+	"uLvZyOyIXC42nD9/+ZqLvHA+4tD1sKLx/KMMlZWGuNpNa+fWtvkXjOVfIM17TUTsmFa2qEYTqodTqZb4",
+	"vVfmgL+lWhOqSao5gDKOXRm+OBvcHooQ/Lh6n928minfYYA32DZPA37SGhLnu4mvBAowyIh1NAupLxlr",
+	"CjdYNHRF8svyiI0IZD1UrLsj1HvGu8DK4co880/XCNeyeI3FCJD18vfD2KJLeEPCSGOYEZtxgmpIBu3M",
+	"X2yDR+Fl/HzqmvhcfXEbr9R9LP5dsw6iHAgjiVul4CfHoHHnMKhQT3vL96p1V0qxNhqsKoWlCxXU4z2k",
+	"x97KrdUFpdKDtq4LTHmLQC1XYnsJztea8B2npUCs3hai7mewxJdnLHWDwtLxAvjRiTgz+894dTN92fXS",
+	"leIF9P7PZ29ebyTV5+Oz7+HS3TYbuLsBtnIorPvOGvnDcqk//g5EdH2n9WkZeatbYOywIlDn5jzo3o3h",
+	"Veul9dZScMPKhXO6PNIsnkO1OEkFD7NaJCiFVyy+JPrOoraPBHnGlE906q4ir7jlXW9Sqxen8wJ2wgO/",
+	"hxSoB06PXzcqYHVGxELe+ZLVu22M4S0Y5JekljHxW/VWCFq6C2UL0ZNNE9FKcrd4Ca0KN48vIdg9Q6mt",
+	"tehjy5ierBcfFGjnCkpZTWjp8QqBKw9M3dYNkYnDDFrz3tcwWTTT1L3O3jHopWKR92cqzJfiROwuY/1d",
+	"ykTmS2xJkUl2HYzbmzl4W45XNLuVy3mrtL2vSXO4irX7sa5+5UKBfHgPy0OxsUr3Q0S6q/tWw1ZGHt5Q",
+	"AKY1TKXuQDqnlwxcUZDIhhFLEESSbt06j2596KS6ateuqDnqdSfY7Xdh3gtRPSSjoZ7VSnrzbjHA7k7Y",
+	"NB1J1ZJYOagyGEJ0CDxlFeH07Zuzd2TncncHBc+dn3j+ead6UmMxFohb83Fsm9WxaCkfswWekoUot4HY",
+	"rIrqE8XGAKccozMcuuJSVaBRVRvulvFwbTZFe7EfacLzhFDtQLYAz2LMWA4wCJrwrobye4qvu/cAudUq",
+	"ct1h+yBukvvgi/fsP1mI7rsF0ap5024wX+GiOAeWVARd/3bFEX/VtdLdsHUPOPYJ+uVJWvtpsbSTg0kI",
+	"0a4AlcBFRzTvtR05dek6lni6BSiuE/rYvH5xMGTda9W4Ji27v14mXixa/COqBqvuV2uSxVraAPaub6eY",
+	"r6vDNjEuHiyj5CyTGIvn7baqFPrgSnETZQcc2FMebD8HFdhmPuWio3kXOjothf7BtY1fYAen2D58BeYX",
+	"HbA34bsj7MiO19sZ7zHv5RaYxKuQ3x5C56oo0k2IsEu2uWZ++AKq18Ki3pB+FT0cL+8X1cPuusjgb1sM",
+	"XVaMEcOuTRT7DLmnmRRGycLyWUUzw1QAKDF0hJXvUOazrC6jSnF6btm2KZVopN/teYqwJP/uXweD635/",
+	"2/75nf3j9/aPY/vHc/vl7ovB4Pq3L5YUdnwnL9htzeG30KG6y1NLM/S1pRlr8BWggS0MBTxw7XK6Zpli",
+	"pkfOJvJKEIgZlVA0mxuSUeE0DkBPBxW7o2SCPSahti9O5Eb0Udii23Emv4jd9NH4zrU4liXiuFBDrngB",
+	"yX6VJ/OQaFgrp9SgwulLuJY5N8QoyoveXTaw4pH7qxgkyHUfS+Z+bqvoUN+AtjWHUxif6rKELYzvXX/7",
+	"Kd0eH22/+PDTd5+344/763zc3WtPkH3fKnAfERC5regKcrePmp+e77yEZDH394+z2fRDM5H38coqsP/d",
+	"9v/w4afd5PGS8dRLSK0Zwg2FoXZ39L/upVg1DFK+m5hE5OxZQvTm9Rb5Hcn65Dck2/3bX69bwJn6XaFZ",
+	"djs+6EMYV99iH2jW34Cm2w7O95VDqREDCmEWDo1AzEkFoY3ltl2IswuWWmrgqOGjU+2hjTvKaW50b/FF",
+	"9+kFvI9jrxdmWbf6Tmd8wfXLRDysva4LQ6rSPlrs/uMxU0xkrL2Ow6+fkd8RLOYwlqXAEg6utMfWjvvH",
+	"LS2Z0GDnQh9ds2zZXZNs148e7lr854/2+dWVOfiUm/adsNz906+ffSK0KOQVVsYM6/BINyuKdjR7uor8",
+	"SzCCMnnJ1NyP5w6lNe5s0dKyXIYZ4tIqYOke6VDiOJNTpp3BuZOMExlaHLW8Wdz2h7ixWAv3Kt7ZsOjh",
+	"YobpuajgdYwj8fn6crEhTgEP8fGtuc5Tyyx8erd7smHeGzEIfYba9B2q9Dbrb3WvutXY8EbFq+Z0bjC5",
+	"LNzpRZbJBTecFinZPDn+Hk37Vq/iouTiPCWbx/bbuDBzPKKYU7qG8BS697uzzNDkSWimdmCiJhvz+kIl",
+	"vuJpdxes63t7g42i3sUaW3vLWJeV+K0+/T1GcF0L33iVQ/K1K7nVSKfHzEjST4JaEyzdvkbr7as1dKrZ",
+	"cGdG+UXtLV3IvuMQS/TeZr3XNe8RlEhdkr8gDWsv60irgrXoJb/gsxnLW4vWLlomyumQjvRQtTT+3/7z",
+	"p1+fPv/kNZ5asbcoWVUvCGhtw7lT3as7AXbFCF3RdBO/3G5tl29nazHYl4xqs431W7Sv6drzCiMpAUmD",
+	"+PqmTnd0haYx/XcgKvSNs2f60FfFzSZSwttT6VLOYQu1l/v0lBYF05DlTuR4IOhIy6KEZMa41p6+cePA",
+	"kIeedD0QjeLHlmakC6Vf03qGqpDCruTuzjX++a978Pcc/3SfNPxtJ9eRf4Vlf43Nh88n4vJfmp/3Gl/8",
+	"p+bn5gNntS+OYFifIV8sKxU38zOoEoyo5owqpo5KLGDQ4PT2a6n4X4BKHJDfw7NIczMwMLnE9B4Bc5A+",
+	"IGnly0gTKM0cnBkAsVNzZwBATz7lIj0kmjEHLwFhiFyKR5qk19v+mG+jWchtDpY5tuQDhlRd+4kxs43P",
+	"n8GlPpaLU4ogDDDWRteye0sBR6qgI6mcGSCSY8KpgrL+eiBo7eeFwOHE1+riJgT91Oq5VviUAzED2FyI",
+	"rCCaAQArZO9xk4CbGJtKyKyQCLd9yZSOAzg03JRSXAh5JXRC/nTks6Vsk1TULH4DMRDffOPr9NhN8nEV",
+	"1GDKee+bb0iFikm4DsjR8VwGAqCtzi2vB2hrpjj1HmWqmFdZNMkVvRKuYnQ5KriesJyclzynYMOFtqp1",
+	"x8WxczOO06Or/NxecKlgSvYbpxmevXlLDL2wy6hYxgBp6zDI54Kx3K/FyHKTjyUtMBZrxpSWoZS4E+B7",
+	"5DnNJgPhMvRFHofJBKuYYjNGjUawFUtJvPCVwur+6lfkOJSO1gOxjZARiJmCISVQ6FzQCzbMoNd33H97",
+	"+uKYPH78+CnZTJGjHJAgPKVbyUAQ2+P7d8dECiJLMytNj1TCAhxiDCWzw/NlTqxuT5Aq6Z4dEaIk4Y+u",
+	"dPfJ8+fPt3/7ZJ8gA9M9HLazryN+1Wv6GoIXsNz3/NAOh7rwJCxL16itSp01DRGQY/NZhUZObSvNaquh",
+	"vjEFM8gWZEZZjpomLl2REm1nLVgBM3JyLUEGp11QEXG3Aldfk820TWQ5QFxNANoixMtQoSm7SFkhtb0A",
+	"lh0WRUI0olwY5FV2/TJqsondRTHH3mxbwNPsnVZ2tLkr3gcHJ5cZ0p6wZkiwRuyQZAUUFid6YpfMNqQN",
+	"LwrCz4WEHYPJALS7w2q2s0wIpHhC3WVFXDiZJjTP3Ru49b6kYEX+dCjton1tF52EojzCo5rBSsAJrM7b",
+	"Adm1LP/bfXJ0dnxyQgpmDFM6ITk/t9cUIkd6lt4P7R8H9o/tNMEpUYTZgbxk6l615wveJZso/pC0Ot7p",
+	"Vo+8FxwCXMBRh14921rk2KMqxJT5C2n5mW3EV6G2cwK2MhBICtOdy92UKGlFDUs1NFmDBx659DHwG9rF",
+	"FWwgpCJTu1nYz4EdyCf8QD6BVe8TOVfU7vKngfi0vb0d/rcPxuyUfIr3inyCHDBkWRAbD9vttihB2yL8",
+	"aO9Ugg/X0DsqGcnq8TugtbtOY65NPpGXJ6/OANntHDmd7RzaR24eeFLEi5IGBF7irZcAX8vshW8BuMXu",
+	"6zIC+WQ5mTZ0PG7tFrlbxdr0YUiuhNrM9vIe+gpPsUSvWCZVXlsT7UaAQgn5ROAfXBtgSnbaIEECSbXd",
+	"l54B4Shg+6GNgXhek2VIwbVBho4HwQH/5lOO7BbVCnZtmLDXdSBaRJ8DQt0Jm8gCUEi++caSGSnYN984",
+	"SXhqKSQ0a1je8zMZCK5hCCwn7NpK5NwUAB+vgIha+QTCUHUgafZpz/QLZix3shz6zYyJo7cnxEuSPqkV",
+	"SJgcE+quUDVzS7ErIfOA/PghHYhN387jXh+NvtpdClwoKYo53I439qU9WF37yskzy1QFywxBEVBbYn1E",
+	"phxAlRMypYVlmAhlgzQfTsGlvGBug+yI9vu7h8iyuP/WcRor1LmVwgHB0497JN2ZQJGtv1jatQN1uvCf",
+	"U2YUz7QLj9uRMybojPfmdFqkAwGyh5Cuk83ULxwsxJYnTM9Bm/FUCPED7UYKsoAQt5nCVuGB3XHf/ubP",
+	"GkL2kFYOROqwsiylbMFxS1F7Sp0c0gbrdmCZhIO5GsncMTMrPtkRffu0v7sSAov1zoGLpjvhxu3s1Qti",
+	"p2QzHWwMNqAck33zaiILfH/rEHs/PvueZKwobLedQbUSkooUGvQFA2eTuYaSKxDfsQmiJiETRnMGywxf",
+	"7255p63r6Lc7XtRL3XAC8BaM5ya0Lt/cx5Kp+QHYyO3YZtRMDniOzC/FQRyc5Gw6k4aJbL79RzaHeGp7",
+	"+UJUw5RrK98KBwEWLz00hAI3194iopCvOrSPdMcdtVf+ehA9F4ZeJw410GpPjscjt73ksnAk0fLR/X7/",
+	"EA8PEi6uB8JKQNuutVHpwdWspFYWIfDUSj08Y2TT6h8uk6tSgYLQMxD2zln5I1xbX1yOEsUgLpxXa0Qu",
+	"2Bxkwf29Pct3n/T7qL5YujEQAwzoFLTAqzTYQPI8YZa3eXjA9NCZcqyAeG4H4k6wk9QKaY/wawnU3nbm",
+	"BGr0FQcgQq5rUkZQqVB49LJAHWvQSsTx8knBQIwNfi8Q/IBqX7CZcZHuBc+YC/3GCJINK7sqzgxV8wgw",
+	"MFZyMf1Ru3SnXr/XdymBlkZtHGw87vV7jzGCYgL2AE/l7L/PWVuog9BXVrza6/cjMLOZkhnTGohWwS9Z",
+	"j7wG8clTvl7IJeZSnOQbBxv/xMwfXFcNy+Zev+8AjI3HjIoo3p9deDoe1JtsZq42I1gEGvOAYdrVeIL9",
+	"tTUTxrXja94Dpd6IjSkbBz9+ALMbFh/feMkvmWDgyjeQd/FjNXONdhjPM5Yu8lsl7flnpcYwNnY986g+",
+	"qA821/cQHwG4OGCeVry13MdcSXWBJjaX36mJUaU2eKYW9uSVG9mNe2LHtTMrKG/sRtMbubDwroeHWPpo",
+	"2aZhHks3IebUS3fi3YQRL6wEXS2iEldUk1HJrVSr5LTTsXfNrXfs/SDXWOh46FbO8sNPyH86evXyIdb/",
+	"XazRrlp6FJ860hhnc8+poZafE+p+9TYgx7IsvyyVggk+6T8eiMot0NyV9qN/ioP6WagR9G0ZEByrW++N",
+	"fevxzW+dIVd+L+gl5eidWLWtp5BwcQNJC+liS3f1m2/ASnzwzTdNw/CCzieVV12AqWJ8OhEMoEXHXFlZ",
+	"AeALMVYkjZJFUjCgOFHWsX1BRvOBSHke/9gjL3gBloJMTkdWBARZ6ej1s0OS2ssMgikXznuI4r2R6UAE",
+	"j2KCdYqlqI+gR/7I5poBrhYXznAwo1o7VonAZwMxo+fskSZphKGVAkaX/7cDcwZcTUbGONzDxgtWFgPv",
+	"lHSFlalGRC8rGeFDdiJyRj+W7BBkjbqRLmcYsijVQMAv4MCluVsQuEa+8wT1oX7bFXrJtTn2UBVBVtYQ",
+	"4Gq5xAZIwj7S9qCeTN/tAsX+0M9Je7NRydl7azPkBd1fkwHxuFuTNYSMZW1GSBedGo0ANBYKzFFVcHvb",
+	"aic7qe4DwDC0jMHenNoAurj/F/t/SU1L7+HmLevdyHvo+y09Z0TzvyztxZdbrDpybo6Ngyf9KI5g7+b6",
+	"8m3yRv1+B4RvJBt4tZcMLADxdT5UGlj6hwdkenByIeSmhe+9EQwmZGeJPAB4334X3vd7GsrCwSu7N7/y",
+	"XlBnzmU5vtSBW76QasTznEGQwv7e05vfeCflKyrmbnT6Z+LmgX8fYzgptwrsPOLhjl9/SDYWjI2QltYp",
+	"E63O/CFX/AEkAIR9Bf17zE2PnCCXCi5JKTKWVPzSpZTbW5ETLgYixW+GThnGDHaAHAcDqGKh5nC7bIjI",
+	"SgtsrW1jqkfw6Ds0gYe9X8vkf0Qn/oVfqf7+zW+8luYFhKP+g97BIw/2YY+o1VrAse/iA8B/g5W5H/52",
+	"7oCzpNMdXX0nvakrs5J4jmDChI5kaWJ8e6ekqVIkRBZ5EOCdQyHy3IDxaDZjIt+WopivuolHMIVf5HWE",
+	"ob2USzVyRM79eiV/AVcyOnrgusockfc30F2mZTdwjSsX4OHhuM2kvtPFw1h4TajViHHUCVHMhd4FJtjI",
+	"mnCC5EBgLUxahOAKwIEGVlnVCii4QI8Z1E2ZW36NzQzlOD20iiIjoaHAR30kPHgSfOlXJ3j0yKlrvTEM",
+	"55vFN8Inq71C8RIfLOOqGW4yR3agrYGA8HqIQreabRoCDlOy6fw/7YUPthwBCsvjHCapr+nqFv/QYaU7",
+	"f7bPjSvFI+09GgNxzgx4PtC/7eOjuEmC48HP9pEOYUlUITuYQBUlPRBVuY0eeSOKkAOjLGFFcorndEK5",
+	"IBkVmO96yTXLyeZ+/2kyEOB8SV2+hx66t53757QsmCab+3t7rpbTSMFfXk6qHIOBTdn2DkMU10AgTNHJ",
+	"8R/Iq90+2dzr7+1tJc7uEAVvnb1567NULLHfAndiCp6dodu69ADHgNsKkULICeHbKnCUQyQFplHoChkI",
+	"GnSHRQ81GH7ttgl2lR4QakjBqDbwqi/agRFJ7rDRAoyQ2M6UXg/9L8OxohDEgM1MpTZk7wn5dXBp+Th3",
+	"P5SBIFWz9qgV9pTWJ+GHkMlSGABiB5+Pa2rLjYKLIYbbDC/YzMTTqIUNRg+mLj7HjiGUB9b8OvFbtEUu",
+	"GJvB2YQRYE8jaSZYynDIRK6HgrHc12o5cJOxw63dNbsAYO9yDlRX6cefcF/qB/dTUKXkFVq8oCM7F3jb",
+	"dngIJijbiIuywbG4ESQQ1WUZt3HJND684GoyR6ipcyaYohDyk/oaM8GgBYu81SY/IOV87qnxHSUIYGO/",
+	"l/n83oSHMLLA8uuh3qGWRU142f0yukScfod+a+j/pcyW5Gy8pWYSA+ojYn/aYI6QDl2fYrLKzfHvTHDq",
+	"dxCcjqUYF67+7f5uhzG9pfNC0vydlC+pOmf43pMuC6DLGcLOvWI5p+/mmOS/v7fX5WXnBbay1nNhuJn/",
+	"o4qGz5vhYi6PAJQ26iWvCELbi4wfs/sQF2eFNL0Z5mQ8hCGFThkEz4GzATrTl+epm9nb1/9E+JSes1UK",
+	"2NtCmrev/+khVTAYw45bhRaT7ogLiuasLo5QmOVXpetnv1n24ETaVkLwFD240cOf8ge4UmdVIG0QA71s",
+	"SKZUXbDcichOQ3Mzh6yOUBh8IEZU5KgwgCbB85IWZEYFKwhUpgaFBa9miCuiGB8CkT8DIegUhExsP2Sh",
+	"RBkutnXnJbrpep99/wWut748/831rSIbvl7oX+iFxnPz8Be6CjbvZlOpR7U37vDJQjqVnVM5I0aS3T6E",
+	"F7rchyiPy00YVD2rMA8EbRYBx9tc3fKqQDo1kDbvvk8r7Q20K6/rbfXIQgRij7yNkr4gLaWZmUXF3Kcv",
+	"gUd/Apx9jGCf1Ligb+3rE0vlicJhDWVkIED70qC4IWlyCM9E07mPhMTEnwJSHkqjee4gkl1qHMsHAjVA",
+	"qZCQEYrWbheg4KzimOYz5oZsVvlurh+I9hyI/f7T5VpdtCi/OL2uGttail3/QQbg63i2e2OdDWsWkknA",
+	"fOajXV3N0K862Fcd7MG91nGyAKSq+dzWiL3EXKAjj1nBU1QoS3hXE/0reQnSGZI3yHptGpYta0l9WWds",
+	"wNdjThFfHV1raEOrKh46vGhUSLFKYRumH8FaemAjv6HKnDPC0cqUtrm/txeIshRsq0eOagwFinWTQopz",
+	"phZnBjFiTw9AjoWsW67JGNC0BuIUwDR17CKEBGkhr5B56jYSj9i09+GFv3/iXq9M+IUJ+1KL3Wkof/mV",
+	"WH8l1g/uS22mXD6oO3UBWemeNXqMbKhly4YwhxYFACKQTbosJvb7BkjTLzBoYQEda4nSXVv4r9r3z3/v",
+	"vm/P6G4NZ1hhm+6ohidd1OwaAMzye0ZOomR22+xALElPd+jFI2qyCSbqSUE24462DkOO+EBMqQ9KAh+r",
+	"RyKzt3RihabNxqCca5xRJ2kFDX5EswsU3SpZZXPKKJgG0rBJaUKEHIhQlMdBEkxnAJvEjUvBrOe+HhAP",
+	"qjgQAEEKWIsedBSa+PWzm8FJyYmBxAKmQRkfCEDR/Pu//ZeGw7gCmunFizw0smCKOiTHNEEBcSC8KeJv",
+	"/8den/yajCVmaL8/I8/fHpGzH7a/2/+WvMLwku/6/f6zGAenvo+Hi7EBLi7Fzl7xHNYo8XFiA1GDfYGv",
+	"fSyBjxs7qtIrYWk9RirmP3gx1Uq2Grb2yKP41s4XRF5IB6ARkEbrqAXER58PBLW6ryvSZIk9KYXhBSQF",
+	"Q+p5vXFI0g3BOYeEDoR/DgMSCqzFb0Ag9734GlAuggTtvXG7yUAAmgaI+Uoiso/30SP2pCtcRAEcnVld",
+	"QGgMZ3DHHIsswcLt958SZzLGmJbCZbn4HGWU4FEnwakMhLs+QyHNMOgrW0nQdaogFsDaESTEPgV/WdVI",
+	"HKFSNdGwBrlnJ1QPx9ykWz2yv7d3YNe0tuYOwyfezSjox/ZZO/qw1sPo3EIyP8VQmSUmpu/r0Jq/LDWk",
+	"Dd7xC4cPtAG2dpAkQpCoLI296F9Vlq8qy8OLTqcoI9B2VJwKFKejBBXX8LlBlYlgfHZ+qj589jqOI4kP",
+	"5P2PrDi+9qADPmj4CUPlXYMcz3soBkLIq62DCL0RO434mEFbPxBkeBe7UyGccSA2hTRdmAXKU/Zhz23Q",
+	"l4rJoC5jESPHwZKWIFg/dYJRHoHn4ayuKMYRgmHK1d7U3uNCNItjQHFiQy6GAFAEIE8CLG66zCZNjhcQ",
+	"JmWRM4hH7ZEAj1trf0qvse0hPWfDiSyVw4+JBBiuXTtmQoVbQNyJBCvWIuwcDKxH9vv7oTKibUUxgI+w",
+	"D4IB/0qqdsuad/meiBcScbrXY2uVGL9xc0bm8jCvddIpF7nJVGJiu8fNOwRzIvqnRpoJsyxhjpr18wUf",
+	"PJnHb8WqnJ5q679q4T87K1ncFXtVqTuW96qC38RC7tctfqS7VYNt2sSqdRhjVvkCc0kdUUgX2Iu9uoAH",
+	"OxDpPz3HrjtyTKtEAH4ZrP7Lk1dnAYAL3CLZhR9erlsd669lc/zgytgfiJBVgS6S5TpCRQ/v4pCOqeoD",
+	"6QttA/3qnf6qPXzVHrqQ/D9hIev5Ctp3r25qhzPZSSdoCPwFQinEeWAopnqItdEcMoCW+S9eua4fkABg",
+	"F6s8D27+X9EB7t91VxQR2m/9rMShFv4ELju/6zgJYhED7KT2/JHM5TWGk7rbI2+lNojkgylikMdlH0a4",
+	"YDEfiKoeEVrrrXrXPPO+adQcr6NfNvf6u1uHA8EA8ERVU4d0xCQyseLtjoMyQiMc4AgGIkrBrIbOrmlm",
+	"XDZfY1xYkNuAUGTpyED4gQonnGCYB4ZMcGNH24fMRcU0Wq8LNjYEwjTGAxEZ+lMARI/QEKr6UdoDtNeq",
+	"/OmJvIIpFAXksfXIkTMAVGjlWMMR5seFFXBRqd3c39tbYTZ95dFzHkKMwcZ/JsHFzayFZqHOmtHCG1ca",
+	"O38YdhhwLNBYCtTtPg2yy8eH1867YtTdkrs8I0kjTrXzkz02/96yu76KYr/AQEG4PIEaJZX3LRZ5sM7K",
+	"usysLn25M30PQljiS4rKAFMTJ9mny9E5kZK2wavNqJlUli1XTfchLG5HRM9Yxsc8i8hZROM62N2i1Llq",
+	"RCuRsj78LGS8Ej2/2tl+/pv+RvjduP1VdmrW+s6V9iAx4NyOxFQAEJXMiO74AF4QFYhMAPMB4WCszgju",
+	"emlogWYMwIr/mG41UXPeyqIIGB9Q76aChWsFk4RqICnZxAt5UEW0AOCFFX2beJKEFld0rolmhmyCe9bB",
+	"igNSG1QH8uqullDSxGwlAwFmvQnVw6lULPXeCAbwkVADw831iinm4RdIJqeuWMFAvIA4EysT1UekGdNu",
+	"PRFkyEvUUmTswDcLVUmwrBriMCDsBnpQGFdxLIR2/YK5kOK8wHeDcRqAhe768v6lMFCstNELRR7wMa7J",
+	"lbK/C9911J0rfEMRx9wcQLwTSPcDoUoIF/H5RRDX1EN5ME1I6r7v0TxPD0jqBEWMlkDjcIim6PmApmS5",
+	"U9M9Gf+abgHyZ6vzLbwQfooH4asSVyAqFbqJHbo95b7uaHg49vlJgQUcWs0Op9DQc9jcRY53G9TEQ8eU",
+	"qqHYG+AfHTMs4dcK1mnv0PqwiveKLLnb7zdKVCY/H8fEzXnB2gM8YlTHfwy8q39EsRdZiz22UO6rFrlW",
+	"C7vGb25nd1RlZ0dSVKpoIUMaKu054CSyGRXSqxCnHKVDf/8YwoEEq4rqWQqF5ogGwNWjgPsdSdeen1Y0",
+	"+IBQstffHYgpo0JHhXxqxB2iC0vhMmVEVB8NC6iMSuODJHFkVYkOZ/uRCkMPLedkCIaTACRQ2FrCPpa0",
+	"SIiRkowt/UYIny10RPGicO6oxJfEcuGLcQ5PPTvygCh6NRA5NbTC4jITJa8EoVd03iMncQEYsrl/fb3l",
+	"6x86O0QEEDVic+lAfRy2Ohh4DuI4hmmpfXk3RC+0HzGe1e9TBZV16C1GdklCWrpH9CroiBWA/EeVBp4+",
+	"EJsL0EmanEusMhOF3uJhMVfSlylzddD0xG4ZheqEVdTtob8kPK+Zs6KSja4gz69IVJFlIM6YFW0WirQY",
+	"Sab0wo7QQDK+pmOG2N9Y2s9ejaoUKlYAAklAuyICUxj+BZshSwpoT3v7BGJCMALUWc0egXFOnDM1Uxwl",
+	"DkrO/nC0vffk24O4LgxCLYbFt0LgjCqNsGwDwUQmQyID2dSSXE24YUTPaIbxn1Nmj72TndyKTqkxTG0d",
+	"YkcDcXz2fa0j4GNVhRwdYKEUvcICQqO5YVh77oxOGblg88TjmodJJSjlBoeerz6V49n75hsPozYQJFyo",
+	"b77BIiymVKKa115/t4GfDqMAIdVbtVwpRQzQjrf3lM0KOoduVcnSQyIk0Syzt8KuaOUxrk/HW6JNPKcD",
+	"qFITPxjVTalPNxAALsi44OcTc+BqTUDXELlkB2z3wAWWO2HTt2D4lEHorAe+VzATjLGWigBQ3X7/KeCF",
+	"4bxPmVHz7aOxYSrdItxqKhWU1pgLricg0nLwEG1D+LXrzJ5lR5wsSbEdPLGUJbw+kQUGYF2webha9uhs",
+	"plA/JNOX6dZAWLZaK27HrmdSGftkj/wAozxGqWX73XzGDkh4uQLjGwhX0MmVRcSIca/rLBzPFOmYFbGr",
+	"jqFEba2WwKZnmEhpUl9EJSWbcoYFJLcOXfJ/2hSnUhffHXULZHPEvCC6ud/vbwUbERxQrsn7dy+2vyOb",
+	"lj4i8Jq9Ott4HadUXUDkF9SAzLcw5ml/97v+QGy6qU/p3PbxsZQBDzIdbKSH5OULu0XHpy9fYM0rJnK9",
+	"1SMvuYAEAjtWOJADEeooQpbor1IPM4DbA3F0lsL5OtyjgooLaFPHP/RwXnjIsY4A9Ov0R9ywHjmG8l06",
+	"OCIRsFHMkQK5molY4wtKALoow08RFJ+8sh+dCGQ/NIophoKKF1xATcM50+QT6CjQQgof4P3UFwH0ASr+",
+	"Yc/XqrqXS76E14EhVS8jq6u9ijq1q3lYr4zm3xLtVe///m//O+k3WgjFysLLECMYFTd2h2n5D9AOLsKQ",
+	"w5IIWfVSMc/GTH3my8IL/gcyppmRqqrWTzbxERTFdrewZOI2eROBNVqmrORVj5x6ScCX9JyB9kkAXrBG",
+	"4QENsIorsvfV7UIscaLrCy6ip5CMmnoj9e3Y8sZaYCONHqL12vTVN6uKbNBNo4doxbZ65FReOU7rqn1Z",
+	"fh2kH9sSRrXY9YE4M7wHcb/A/dylQNurmMMtABEBH6zV+y01I2kPzEM5y/iUFgi1CgXYPF0DIiyASqW7",
+	"vSds+3G6halOxNK1UlORa4/TKKEuyWv62hLUEzEO0ayk4BcsrsWKKGNYQTasCOCDQKYXFyDEOE4Dxf/q",
+	"1UoskZ0jLq22k3ykib3TgbLCycLXRVwDMi/dkuZ+CZHUUF88slpD/N2VJLbr6OTwir2jYmBln1CEl4qI",
+	"pjkfhCV2iJQJefLw0H7/6bcoC0Wl4xwm68wVU+xc6xCPR/vzkMiCZwbWGAHG7RqDlIjruPn3f/svCHAT",
+	"xGwsje4IK5ItqaBSrwu4sq886fedyI2fY4wc7PfMFRK0aoezQjGnA1oBAHgdVCpDOD0ptpEmoCvwMICM",
+	"0jnIMyOJIdGg+KC3JKov+EhDo1jJRkVOeygqrVyBS2e69NgGUKwUF67X66V+9dGydw1zORiINE0H4ldO",
+	"IsGOI9o5m0gjgbdv75JNxyAXGeHWQNhDmnjdB9XCOlX3BDwJNzvxdAJweGBDEsHt8yx5uZv0e0+Sfq+/",
+	"299LkpVP9J9+1/7EXrLb69sn9vpP2p94nOzhE/u7u/AEngH/ewIvP+knP2z3+/t7Sx7YffwYH3ic7LkF",
+	"XRIpcFqun1cVye1/ZPONRaObPRlw0oIwB4QfAaC9PgsBUEuMcnes/rPOaKKjVfHZZeO6hwJKXccW0hjA",
+	"OEKrXI8q5n5piH0lT99DbZ5qiEH+tqOTloU0kliWDcjL8J0X7Y1/4fODQYiUUehtsuHVm3oDiwsB/Bur",
+	"xedIIu2cp1y8ZOLcTGKzcAym9+USAk/Lm/IAwUDh0v98GpEKtV42rdToaLVyOvlALFhiEvQpuZccawj4",
+	"8m7DnKMhCm5p0/gXFzoFE4CvQ8i1115cbyF+So7BaRTCyFBHrpsgrBrcJR5mJGXBqIDD0C0EB8IdSg+v",
+	"rErx7xJc+Wv4zS8QAFJqA1WfhbfcR5c59kOUq4Kf4/TJFhfEGnWllrshPL3x7mPqzXgHMGIvurt6Dw2Y",
+	"fzSeBi8LflfzMiuWMQ4ZiHWCtqzc6C1kndNSPDQUjB3Wclr9NQrml1BKyln18fDe6xW77/AYFxBTq5ri",
+	"rST12+OiJ3rktCqPMhDNAm9eDPW2KB18ZYt5GFH1N4c24Wq+cxU8e3HZmh45ao2B8HVzsNVzbmUU0Cjd",
+	"IHysYa32S73mQUjtlQWi0nAdl36JYiKClfw0jhUaiGdMWdrSxKPxlOZPx0nsTyiLWoa3HoicZdySrKhI",
+	"ngMS5MLuJHQWSoAMxG4v6uWqNsSlqdoHJPWTSg8HYi9uIpNlgXl4wVXaePxxs8eAPMKFC3VpvLEfv+H8",
+	"EHYxppZyGwnhVyHv27bo7EeQJ95o60kvjmBsj54JUEK1/HZnqHCnAdF2Ig8CjivuLWlix8DrtS43A9zw",
+	"IjSMYuhasUdnRLMLsE6CqSpCnBmIb+PFqSW9H5AUkCE1qE928r+Nn41y6Z2LiLqjkqB3KKTT49S2DqBv",
+	"d4YsvarFx4UAODjI0LoPrZJjEjI8HS1JlzPL0xDZ8EvkmX50S2unwM9f2efPzz7P6hBPGLdZinuNmEFe",
+	"6i7x3cNnHDGo6A8Qg9gcY9u395U2YNI82dCVcU9v9QgELnJNPmIWI3c0TWSsyUdrtccc/JR3eVUWoc2K",
+	"u8srgUDjUsWZWIFbVMGCW4mrEwd6dFVxrIqhNeHmPGoGzw7E0hAfsjrCx65onURzvSBYQAl0t9w+bBA5",
+	"rOFT5oMeg9fei/4AyAasFhyqPJuQZaB2zo2ByfGu103NWEQSm0JZutUj/iy4Da8CgSEuwWhWjIFFGHrB",
+	"QEgMHKTi+6W4MdjHodo7dDCsV8qK3MUA2b4AUj6ArTkHmTsah8HtRHhei+yJY23AywtGCyvnWZ7o4GQ8",
+	"87PczoUJT6iOG3Ws3E8NOTEuJc5uuX3ZLeCd2Mj9GwDdqH4m3K6b+VeQR/CocFWrYuiCYb4m3n81Nz28",
+	"9pvn4TQaGRmePvqMfDNh03W4+Qq92HW081PwyX2+Z814XIUWILlMCM2U1FAxGe+bzzt2eckJqLQLijNA",
+	"pqxiHqErx0hdcQ/QenleQWniuBD3xDMARISsQg6WSOlIxZYK6otk5eXJq7Pa1BcYmw9f8L6cepJbGNH9",
+	"ZLo9pI5QX5uvasIvvgRg85bSxmm9N4UBAoM7aglxySKtS6gxoajI5ZRgfPFmCCLe3fuOjLjRW9VdOueX",
+	"TGBcsnbljzXLFDMOSw7cW5VDSxTzwxBlAVEhEDAO7lcrErrg44GYUD1BmD4wpxXy3Apvy8Wwd3aoD4QH",
+	"AG3/THIU9H2DwxO2KanUHbcBegJxSuKXD+j2Vch5eOIDd5tQPCwRoXGkomOqKz4dXGc5K5hhnenLKbuU",
+	"Fy5iC1o6dPFTVcxaf3erMkg7WBWHxAXwIQMRBeB5VU5Bu7mjVyhntJGKZzBcTypuTni/gxDw/r1V7VrY",
+	"//7iauGyfE0H/0Ug+NqtuMM1sa2xrFSWUthTNWJUMXVUmsnGwY8f7HlwLTYPwUkUPV1icaoISTwy82yC",
+	"hcvHRUb4B6XQLaFqL1yB0Kgt9CEnTuuOHBqzQlpJMTTpHO6LjS6pbehuZi0IMW4vxixbbPRPRx5CF5IB",
+	"osJTdZAHdtX2cmV2rKctJsG4ENn6gikwqzIea704kXqhm/biGElli6yylJqYqqH1j1lLwwiMBOg+Dn0g",
+	"yFhckQqDicxkwTPO4mX1cAUtrb49wZMcP+6O8uLTL60sx3RIoYR/TplRPPPT4prkMguxcLXwN9zWD5//",
+	"/wAAAP//",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
