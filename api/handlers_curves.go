@@ -108,9 +108,12 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 	if err != nil {
 		return oapi.PredictionResponse{}, err
 	}
-	status, err := s.db.CurveStatus(ctx, id)
-	if err != nil {
-		return oapi.PredictionResponse{}, err
+	// The prediction route read the status with its token (authMiddleware).
+	status, ok := prefetchedStatus(ctx, id)
+	if !ok {
+		if status, err = s.db.CurveStatus(ctx, id); err != nil {
+			return oapi.PredictionResponse{}, err
+		}
 	}
 	r := c.Report
 	if len(r.Coefficients) == 0 {

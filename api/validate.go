@@ -45,6 +45,15 @@ func requestValidator(doc *openapi3.T) (echo.MiddlewareFunc, error) {
 			if isUIPath(c.Request().URL.Path) {
 				return next(c) // the QA pages check their own form input
 			}
+			if c.Path() == predictionRoute && c.Request().Method == http.MethodPost {
+				ok, err := predictionFastPath(c)
+				if err != nil {
+					return err
+				}
+				if ok {
+					return next(c)
+				}
+			}
 			route, _, ferr := router.FindRoute(c.Request())
 			if ferr != nil {
 				if errors.Is(ferr, routers.ErrMethodNotAllowed) {

@@ -7,8 +7,8 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"io/fs"
 	"os"
-	"path/filepath"
 	"regexp"
 	"strconv"
 	"strings"
@@ -18,6 +18,7 @@ import (
 
 	"github.com/jackc/pgx/v5"
 
+	"curvekeeper/migrations"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
@@ -148,11 +149,11 @@ func TestMigrateDownAndUpAgain(t *testing.T) {
 		t.Fatal(err)
 	}
 	latest := store.LatestVersion()
-	// Versions may have gaps (each issue owns a number), so step down once
-	// per migration file, not once per version number.
-	ups, err := filepath.Glob("../migrations/*.up.sql")
-	if err != nil || len(ups) == 0 {
-		t.Fatalf("no migrations found: %v", err)
+	// Versions are assigned per change and may leave gaps, so the steps down
+	// to zero are the migrations embedded, not the latest version number.
+	ups, err := fs.Glob(migrations.FS, "*.up.sql")
+	if err != nil {
+		t.Fatal(err)
 	}
 	if err := store.MigrateDown(ctx, url, len(ups)); err != nil {
 		t.Fatalf("MigrateDown(%d) = %v", len(ups), err)

@@ -22,6 +22,7 @@ type config struct {
 	MigrateLockWait time.Duration
 	LogLevel        string
 	BootstrapToken  string
+	PprofListen     string // "" (default): no profiling listener
 }
 
 // usageError is a bad command line or setting; it exits with status 2.
@@ -56,6 +57,7 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	shutTimeout := fs.String("shutdown-timeout", env("CURVEKEEPER_SHUTDOWN_TIMEOUT", "20s"), "time in-flight requests get on SIGTERM (CURVEKEEPER_SHUTDOWN_TIMEOUT)")
 	lockWait := fs.String("migrate-lock-timeout", env("CURVEKEEPER_MIGRATE_LOCK_TIMEOUT", "30s"), "longest wait for the migration lock (CURVEKEEPER_MIGRATE_LOCK_TIMEOUT)")
 	fs.StringVar(&cfg.LogLevel, "log-level", env("CURVEKEEPER_LOG_LEVEL", "info"), "debug, info, warn or error (CURVEKEEPER_LOG_LEVEL)")
+	fs.StringVar(&cfg.PprofListen, "pprof-listen", env("CURVEKEEPER_PPROF_LISTEN", ""), "loopback host:port for /debug/pprof; empty is off (CURVEKEEPER_PPROF_LISTEN)")
 	cfg.BootstrapToken = getenv("CURVEKEEPER_BOOTSTRAP_TOKEN")
 	// Flags may come before or after positional arguments ("migrate down 1
 	// --database-url …"): the flag package stops at the first positional one,
@@ -93,6 +95,9 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 			return cfg, nil, &usageError{fmt.Sprintf("%s %q: want a positive duration such as 15s", d.name, d.in)}
 		}
 		*d.out = v
+	}
+	if err := checkPprofListen(cfg.PprofListen); err != nil {
+		return cfg, nil, err
 	}
 	switch strings.ToLower(cfg.LogLevel) {
 	case "debug", "info", "warn", "error":

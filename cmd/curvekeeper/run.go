@@ -149,6 +149,13 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 		IdleTimeout:       120 * time.Second,
 		ErrorLog:          slog.NewLogLogger(log.Handler(), slog.LevelWarn),
 	}
+	if cfg.PprofListen != "" {
+		closePprof, err := startPprof(cfg.PprofListen, stdout, log)
+		if err != nil {
+			return err
+		}
+		defer closePprof()
+	}
 	errc := make(chan error, 1)
 	go func() { errc <- hs.Serve(ln) }()
 
