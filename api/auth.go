@@ -22,6 +22,22 @@ const (
 
 type principalKey struct{}
 
+// curveStatusKey carries the review status of the curve a request names,
+// read with its token (see authMiddleware), so the handler need not read it
+// again.
+type curveStatusKey struct{}
+
+type curveStatus struct{ id, status string }
+
+// prefetchedStatus returns the status authMiddleware read for curve id.
+func prefetchedStatus(ctx context.Context, id string) (string, bool) {
+	cs, ok := ctx.Value(curveStatusKey{}).(curveStatus)
+	if !ok || cs.id != id {
+		return "", false
+	}
+	return cs.status, true
+}
+
 // Principal is the caller a request was authenticated as.
 type Principal struct {
 	TokenID string
@@ -97,7 +113,20 @@ func (s *Server) authMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="curvekeeper"`)
 			return newProblem(http.StatusUnauthorized, "send Authorization: Bearer <token>")
 		}
-		tok, err := s.db.LookupToken(c.Request().Context(), secret)
+		var (
+			tok    store.Token
+			status string
+			err    error
+		)
+		if c.Path() == predictionRoute && c.Request().Method == http.MethodPost {
+			// One round trip for the token and the curve's status, which
+			// the handler needs too: still a fresh read of the token on
+			// every request, so a revocation holds from the next request
+			// on, on every replica.
+			tok, status, err = s.db.LookupTokenAndCurveStatus(c.Request().Context(), secret, c.Param("id"))
+		} else {
+			tok, err = s.db.LookupToken(c.Request().Context(), secret)
+		}
 		if err != nil {
 			if store.KindOf(err) == store.KindNotFound {
 				c.Response().Header().Set("WWW-Authenticate", `Bearer realm="curvekeeper", error="invalid_token"`)
@@ -114,7 +143,11 @@ func (s *Server) authMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 			return newProblem(http.StatusForbidden, "this route needs one of the scopes "+strings.Join(need, ", "))
 		}
 		req := c.Request()
-		c.SetRequest(req.WithContext(context.WithValue(req.Context(), principalKey{}, p)))
+		ctx := context.WithValue(req.Context(), principalKey{}, p)
+		if status != "" {
+			ctx = context.WithValue(ctx, curveStatusKey{}, curveStatus{id: c.Param("id"), status: status})
+		}
+		c.SetRequest(req.WithContext(ctx))
 		return next(c)
 	}
 }

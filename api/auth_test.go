@@ -7,6 +7,7 @@ import (
 	"sort"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/getkin/kin-openapi/openapi3"
 
@@ -145,6 +146,19 @@ func TestScopeMatrix(t *testing.T) {
 	jsonCall := func(method, path string, v any) call {
 		return call{method: method, path: path, contentType: "application/json", body: mustJSON(t, v)}
 	}
+	// The results and QC routes need a sample with a result and an approved
+	// curve in force on photometer-7.
+	late := func(id string) map[string]any {
+		return map[string]any{"samples": []map[string]any{{"id": id, "analyte": "nitrate", "responses": []float64{1.5},
+			"acquired_at": baseTime.Add(time.Hour).Format(time.RFC3339)}}}
+	}
+	if r := e.postJSON(t, e.admin, "/v1/runs/"+run.ID.String()+"/samples", late("MX-1")); r.status != http.StatusCreated {
+		t.Fatalf("add a sample: %s", r)
+	}
+	if r := e.postJSON(t, e.admin, freshCurve(t)+"/review", map[string]any{"decision": "approve"}); r.status != http.StatusOK {
+		t.Fatalf("approve a curve: %s", r)
+	}
+	const future = "2030-01-01T00:00:00Z"
 	// fixtures gives each operation a request that succeeds for an admitted
 	// caller, and that success status.
 	fixtures := map[string]func(t *testing.T) (call, int){
@@ -174,6 +188,12 @@ func TestScopeMatrix(t *testing.T) {
 		"getCurvePlotPNG": func(*testing.T) (call, int) {
 			return call{method: http.MethodGet, path: curve + "/plot.png"}, http.StatusOK
 		},
+		"getTrend": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: "/v1/trends?instrument=photometer-7&analyte=nitrate"}, http.StatusOK
+		},
+		"getTrendPlotSVG": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: "/v1/trends/plot.svg?instrument=photometer-7&analyte=nitrate"}, http.StatusOK
+		},
 		"createMethod": func(*testing.T) (call, int) {
 			n++
 			return jsonCall(http.MethodPost, "/v1/methods", map[string]any{"name": fmt.Sprintf("method-%d", n), "model": "linear",
@@ -185,6 +205,37 @@ func TestScopeMatrix(t *testing.T) {
 		},
 		"createToken": func(*testing.T) (call, int) {
 			return jsonCall(http.MethodPost, "/v1/tokens", map[string]any{"name": "lims-9", "scopes": []string{"results:read"}}), http.StatusCreated
+		},
+		"createRunSamples": func(*testing.T) (call, int) {
+			n++
+			return jsonCall(http.MethodPost, "/v1/runs/"+run.ID.String()+"/samples", late(fmt.Sprintf("MX-%d", 100+n))), http.StatusCreated
+		},
+		"getRunResults": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: "/v1/runs/" + run.ID.String() + "/results"}, http.StatusOK
+		},
+		"getSampleResults": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: "/v1/samples/MX-1"}, http.StatusOK
+		},
+		"listResultEvents": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: "/v1/results?limit=5"}, http.StatusOK
+		},
+		"createVerification": func(*testing.T) (call, int) {
+			return jsonCall(http.MethodPost, curve+"/verifications", map[string]any{"level": "CCV", "concentration": 2,
+				"responses": []float64{1.5}, "kind": "continuing", "at": baseTime.Add(2 * time.Hour).Format(time.RFC3339)}), http.StatusCreated
+		},
+		"listVerifications": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: curve + "/verifications"}, http.StatusOK
+		},
+		"createExclusion": func(t *testing.T) (call, int) {
+			return jsonCall(http.MethodPost, freshCurve(t)+"/exclusions", map[string]any{"reason": "late injection",
+				"points": []map[string]any{{"level": "L2", "replicate": 1}}}), http.StatusCreated
+		},
+		"getCurveInForce": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: "/v1/instruments/photometer-7/curves/current?analyte=nitrate&at=" + future}, http.StatusOK
+		},
+		"createInstrumentPredictions": func(*testing.T) (call, int) {
+			return jsonCall(http.MethodPost, "/v1/instruments/photometer-7/predictions", map[string]any{"analyte": "nitrate", "at": future,
+				"samples": []map[string]any{{"id": "W-1", "responses": []float64{1.5}}}}), http.StatusOK
 		},
 		"deleteToken": func(t *testing.T) (call, int) {
 			id, _ := e.token(t, "doomed", "results:read")

@@ -100,6 +100,10 @@ func curveOut(c *store.Curve) oapi.Curve {
 	if r.Variance.Kind != "" {
 		out.VarianceModel = &oapi.VarianceModel{Kind: r.Variance.Kind, C0: r.Variance.C0, C1: r.Variance.C1}
 	}
+	if c.RevisionOf != "" {
+		rev := uuidOf(c.RevisionOf)
+		out.RevisionOf = &rev
+	}
 	if c.Review != nil {
 		rv := &oapi.Review{Actor: c.Review.Actor, At: c.Review.At, Decision: oapi.ReviewDecision(c.Review.Decision)}
 		if c.Review.Reason != "" {

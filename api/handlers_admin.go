@@ -22,6 +22,7 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 		Confidence:  0.95,
 		Acceptance:  policyFrom(b.Acceptance),
 		Description: deref(b.Description),
+		QC:          qcFrom(b),
 	}
 	if b.Confidence != nil {
 		in.Confidence = float64(*b.Confidence)
@@ -116,6 +117,22 @@ func policyFrom(a *oapi.AcceptanceInput) calib.Policy {
 	return p
 }
 
+// qcFrom reads the method's QC settings; zero values take the store's
+// defaults (verification tolerance ±20 %, US EPA SW-846 Method 8000D).
+func qcFrom(b *oapi.MethodRequest) store.QCPolicy {
+	var q store.QCPolicy
+	if b.Acceptance != nil && b.Acceptance.VerificationTolerancePct != nil {
+		q.VerificationTolerancePct = *b.Acceptance.VerificationTolerancePct
+	}
+	if b.PendingCurvesInForce != nil {
+		q.PendingCurvesInForce = *b.PendingCurvesInForce
+	}
+	if b.MaxCurveAgeHours != nil {
+		q.MaxCurveAgeHours = *b.MaxCurveAgeHours
+	}
+	return q
+}
+
 func methodOut(m *store.Method) oapi.Method {
 	pol := m.Acceptance
 	mandatory := make([]oapi.CheckName, 0, len(pol.Mandatory))
@@ -133,21 +150,27 @@ func methodOut(m *store.Method) oapi.Method {
 		Description: m.Description,
 		Analytes:    make([]oapi.Analyte, 0, len(m.Analytes)),
 		Acceptance: oapi.AcceptancePolicy{
-			BackCalcLowTolerancePct: pol.BackCalcLowTolerancePct,
-			BackCalcMinPassFraction: pol.BackCalcMinPassFraction,
-			BackCalcTolerancePct:    pol.BackCalcTolerancePct,
-			HomoscedasticityAlpha:   pol.HomoscedasticityAlpha,
-			InterceptAlpha:          pol.InterceptAlpha,
-			LackOfFitAlpha:          pol.LackOfFitAlpha,
-			Mandatory:               mandatory,
-			MandelAlpha:             pol.MandelAlpha,
-			MaxRsePct:               pol.MaxRSEPct,
-			MinLevels:               pol.MinLevels,
-			MinRSquared:             pol.MinRSquared,
-			OutlierCooksD:           pol.OutlierCooksD,
-			OutlierStudentized:      pol.OutlierStudentized,
-			RunsAlpha:               pol.RunsAlpha,
+			BackCalcLowTolerancePct:  pol.BackCalcLowTolerancePct,
+			BackCalcMinPassFraction:  pol.BackCalcMinPassFraction,
+			BackCalcTolerancePct:     pol.BackCalcTolerancePct,
+			HomoscedasticityAlpha:    pol.HomoscedasticityAlpha,
+			InterceptAlpha:           pol.InterceptAlpha,
+			LackOfFitAlpha:           pol.LackOfFitAlpha,
+			Mandatory:                mandatory,
+			MandelAlpha:              pol.MandelAlpha,
+			MaxRsePct:                pol.MaxRSEPct,
+			MinLevels:                pol.MinLevels,
+			MinRSquared:              pol.MinRSquared,
+			OutlierCooksD:            pol.OutlierCooksD,
+			OutlierStudentized:       pol.OutlierStudentized,
+			RunsAlpha:                pol.RunsAlpha,
+			VerificationTolerancePct: m.QC.VerificationTolerancePct,
 		},
+		PendingCurvesInForce: m.QC.PendingCurvesInForce,
+	}
+	if m.QC.MaxCurveAgeHours > 0 {
+		h := m.QC.MaxCurveAgeHours
+		out.MaxCurveAgeHours = &h
 	}
 	for _, a := range m.Analytes {
 		out.Analytes = append(out.Analytes, oapi.Analyte{Name: oapi.Identifier(a.Name), Unit: oapi.Unit(a.Unit)})

@@ -85,35 +85,50 @@ func (s *Server) GetCurve(ctx context.Context, req oapi.GetCurveRequestObject) (
 	if err != nil {
 		return nil, err
 	}
-	return oapi.GetCurve200JSONResponse(curveOut(c)), nil
+	out, err := s.curveWithExclusion(ctx, c)
+	if err != nil {
+		return nil, err
+	}
+	return oapi.GetCurve200JSONResponse(out), nil
 }
 
 // CreatePredictions converts unknowns' responses into concentrations with
 // intervals and flags.
 func (s *Server) CreatePredictions(ctx context.Context, req oapi.CreatePredictionsRequestObject) (oapi.CreatePredictionsResponseObject, error) {
-	id := req.ID.String()
-	c, err := s.curve(ctx, id)
+	out, err := s.predict(ctx, req.ID.String(), req.Body.Confidence, req.Body.Samples)
 	if err != nil {
 		return nil, err
 	}
-	status, err := s.db.CurveStatus(ctx, id)
+	return oapi.CreatePredictions200JSONResponse(out), nil
+}
+
+// predict quantifies samples against curve id; nothing is stored.
+func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confidence, samples []oapi.PredictionSample) (oapi.PredictionResponse, error) {
+	c, err := s.curve(ctx, id)
 	if err != nil {
-		return nil, err
+		return oapi.PredictionResponse{}, err
+	}
+	// The prediction route read the status with its token (authMiddleware).
+	status, ok := prefetchedStatus(ctx, id)
+	if !ok {
+		if status, err = s.db.CurveStatus(ctx, id); err != nil {
+			return oapi.PredictionResponse{}, err
+		}
 	}
 	r := c.Report
 	if len(r.Coefficients) == 0 {
-		return nil, store.Errorf(store.KindConflict, "curve %s could not be fitted (see its checks), so it cannot quantify samples", id)
+		return oapi.PredictionResponse{}, store.Errorf(store.KindConflict, "curve %s could not be fitted (see its checks), so it cannot quantify samples", id)
 	}
 	conf := r.Confidence
-	if req.Body.Confidence != nil {
-		conf = *req.Body.Confidence
+	if confidence != nil {
+		conf = *confidence
 	}
-	out := oapi.CreatePredictions200JSONResponse{
-		CurveID: req.ID, Analyte: c.Analyte, Unit: c.Unit, Confidence: conf,
+	out := oapi.PredictionResponse{
+		CurveID: uuidOf(id), Analyte: c.Analyte, Unit: c.Unit, Confidence: conf,
 		CurveStatus: oapi.CurveStatus(status), CurveVerdict: oapi.Verdict(r.Verdict),
-		Cautions: calib.Cautions(), Results: make([]oapi.PredictionResult, 0, len(req.Body.Samples)),
+		Cautions: calib.Cautions(), Results: make([]oapi.PredictionResult, 0, len(samples)),
 	}
-	for i, sm := range req.Body.Samples {
+	for i, sm := range samples {
 		d := 1.0
 		if sm.Dilution != nil {
 			d = *sm.Dilution
@@ -122,9 +137,9 @@ func (s *Server) CreatePredictions(ctx context.Context, req oapi.CreatePredictio
 		if err != nil {
 			var ie *calib.InputError
 			if errors.As(err, &ie) {
-				return nil, store.FieldError(pointer("samples", i, ie.Field), "%s", ie.Reason)
+				return oapi.PredictionResponse{}, store.FieldError(pointer("samples", i, ie.Field), "%s", ie.Reason)
 			}
-			return nil, fmt.Errorf("api: predict sample %d: %w", i, err)
+			return oapi.PredictionResponse{}, fmt.Errorf("api: predict sample %d: %w", i, err)
 		}
 		out.Results = append(out.Results, predictionOut(string(sm.ID), pr))
 	}

@@ -51,6 +51,9 @@ func (s *Server) CreateRun(ctx context.Context, req oapi.CreateRunRequestObject)
 	if err != nil {
 		return nil, err
 	}
+	if err := s.addDriftChecks(ctx, m, &in, curves); err != nil {
+		return nil, err
+	}
 	in.SourceFormat, in.RequestHash, in.IdempotencyKey = format, hash, key
 	in.TokenID, in.Actor = p.TokenID, p.Actor()
 	created, err := s.db.CreateRun(ctx, in, curves)

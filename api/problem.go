@@ -111,7 +111,10 @@ func problemFor(err error) Problem {
 	var se *store.Error
 	if errors.As(err, &se) {
 		var fields []ProblemField
-		if se.Field != "" {
+		for _, f := range se.Fields {
+			fields = append(fields, ProblemField{Pointer: f.Field, Detail: f.Message})
+		}
+		if len(fields) == 0 && se.Field != "" {
 			fields = []ProblemField{{Pointer: se.Field, Detail: se.Message}}
 		}
 		return newProblem(status, se.Message, fields...).p
@@ -140,6 +143,12 @@ func writeProblem(c echo.Context, p Problem) error {
 // errorHandler is Echo's HTTPErrorHandler: every error leaves as a problem.
 func (s *Server) errorHandler(err error, c echo.Context) {
 	if c.Response().Committed {
+		return
+	}
+	if isUIPath(c.Request().URL.Path) {
+		if uerr := s.uiFail(c, err); uerr != nil {
+			s.log.Error("render error page", "request_id", requestID(c), "error", uerr)
+		}
 		return
 	}
 	p := problemFor(err)

@@ -82,6 +82,7 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware,
 		s.timeoutMiddleware, s.bodyLimitMiddleware, s.authMiddleware, s.rateLimitMiddleware, validator)
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
+	s.registerUI(e)
 	return s, nil
 }
 

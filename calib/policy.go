@@ -124,7 +124,7 @@ func (p Policy) validate() error {
 		return inputErr("options.policy.min_levels", "must be at least 1, got %d", p.MinLevels)
 	}
 	for i, name := range p.Mandatory {
-		known := false
+		known := name == CheckDrift // computed at ingest against history, see DriftCheck
 		for _, c := range checkNames {
 			if name == c {
 				known = true

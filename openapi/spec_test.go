@@ -51,8 +51,8 @@ func TestSpecLoadsAndValidates(t *testing.T) {
 	}
 }
 
-// TestRoutes pins the routes of the service contract (issue 4) plus the
-// operational ones: the external checks use exactly these paths.
+// TestRoutes pins the routes of the service contract (issue 4), of the
+// results and QC loop (issue 5) and the operational ones: the external checks use exactly these paths.
 func TestRoutes(t *testing.T) {
 	want := []string{
 		"DELETE /v1/tokens/{id}",
@@ -65,13 +65,24 @@ func TestRoutes(t *testing.T) {
 		"GET /v1/curves/{id}/audit",
 		"GET /v1/curves/{id}/plot.png",
 		"GET /v1/curves/{id}/plot.svg",
+		"GET /v1/curves/{id}/verifications",
+		"GET /v1/instruments/{instrument}/curves/current",
 		"GET /v1/methods",
 		"GET /v1/methods/{name}",
+		"GET /v1/results",
 		"GET /v1/runs/{id}",
+		"GET /v1/runs/{id}/results",
+		"GET /v1/samples/{sample_id}",
+		"GET /v1/trends",
+		"GET /v1/trends/plot.svg",
+		"POST /v1/curves/{id}/exclusions",
 		"POST /v1/curves/{id}/predictions",
 		"POST /v1/curves/{id}/review",
+		"POST /v1/curves/{id}/verifications",
+		"POST /v1/instruments/{instrument}/predictions",
 		"POST /v1/methods",
 		"POST /v1/runs",
+		"POST /v1/runs/{id}/samples",
 		"POST /v1/tokens",
 	}
 	var got []string

@@ -387,9 +387,18 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 			}
 			return classify("update curve status", err)
 		}
-		return writeAudit(ctx, tx, actor, ActionCurveReview, entityCurve, id, map[string]any{
+		if err := writeAudit(ctx, tx, actor, ActionCurveReview, entityCurve, id, map[string]any{
 			"decision": decision, "reason": reason, "from": current, "to": status, "verdict": verdict,
-		})
+		}); err != nil {
+			return err
+		}
+		// The curve's results move with its review (provisional to
+		// releasable or withheld), in this transaction.
+		events := &eventBuffer{}
+		if _, err := refreshCurveResults(ctx, tx, id, CauseReview, events); err != nil {
+			return err
+		}
+		return flushEvents(ctx, tx, events)
 	})
 	if err != nil {
 		return nil, classify("review curve "+id, err)

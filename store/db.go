@@ -6,6 +6,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"strings"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -23,10 +24,21 @@ type DB struct {
 // TRUNCATE on audit.
 const AppRole = "curvekeeper_app"
 
+// DefaultMaxConns is the pool size Open uses when url sets no
+// pool_max_conns. pgxpool's own default (the number of CPUs, at least 4) is
+// too small for a service whose requests each hold a connection for a round
+// trip or a commit: on 2 cores, 16 concurrent ingest clients queued for 4
+// connections. Several replicas share the server's max_connections (100 by
+// default), so a deployment of more than five replicas sets pool_max_conns
+// lower (or puts a pooler in front).
+const DefaultMaxConns = 16
+
 // Open connects to the database named by url (a PostgreSQL URL or keyword/value
-// string) and checks that it answers within the context's deadline. Its
-// connections keep the login user's privileges (the tables' owner, usually);
-// the service uses OpenApp.
+// string) and checks that it answers within the context's deadline. The pool
+// holds up to DefaultMaxConns connections unless url says pool_max_conns;
+// statements are prepared once per connection and cached (pgx's default
+// QueryExecModeCacheStatement). Its connections keep the login user's
+// privileges (the tables' owner, usually); the service uses OpenApp.
 func Open(ctx context.Context, url string) (*DB, error) {
 	return open(ctx, url, false)
 }
@@ -66,6 +78,9 @@ func open(ctx context.Context, url string, appRole bool) (*DB, error) {
 	cfg, err := pgxpool.ParseConfig(url)
 	if err != nil {
 		return nil, fmt.Errorf("store: parse database url: %w", err)
+	}
+	if !strings.Contains(url, "pool_max_conns") {
+		cfg.MaxConns = DefaultMaxConns
 	}
 	if cfg.ConnConfig.ConnectTimeout == 0 {
 		cfg.ConnConfig.ConnectTimeout = 5 * time.Second

@@ -25,6 +25,15 @@ type Error struct {
 	Field   string // JSON pointer, e.g. "/standards/2/concentration"; may be empty
 	Message string
 	Err     error // the cause, for the log; may be nil
+	// Fields lists every offending field when there is more than one (rule
+	// breaches checked together); Field and Message then repeat the first.
+	Fields []FieldIssue
+}
+
+// FieldIssue is one offending field and the rule it breaks.
+type FieldIssue struct {
+	Field   string // JSON pointer
+	Message string
 }
 
 func (e *Error) Error() string {

@@ -32,6 +32,7 @@ type MethodInput struct {
 	Confidence float64 // two-sided, in (0, 1)
 	Analytes   []Analyte
 	Acceptance calib.Policy
+	QC         QCPolicy // zero fields take DefaultQCPolicy's values
 	// Description is the administrator's free text about the method.
 	Description string
 }
@@ -45,6 +46,7 @@ type Method struct {
 	Confidence  float64
 	Analytes    []Analyte
 	Acceptance  calib.Policy
+	QC          QCPolicy
 	Description string
 	CreatedAt   time.Time
 	CreatedBy   string
@@ -100,6 +102,9 @@ func checkMethod(in MethodInput) error {
 		}
 		seen[a.Name] = true
 	}
+	if err := in.QC.check(); err != nil {
+		return err
+	}
 	v := reflect.ValueOf(in.Acceptance)
 	for i := 0; i < v.NumField(); i++ {
 		if f := v.Field(i); f.Kind() == reflect.Float64 && (math.IsNaN(f.Float()) || math.IsInf(f.Float(), 0)) {
@@ -129,8 +134,13 @@ func normalisePolicy(p calib.Policy) (calib.Policy, []byte, error) {
 // created false. Concurrent calls for one name are serialised by an
 // advisory lock, so revisions are numbered without gaps or duplicates.
 func (db *DB) CreateMethod(ctx context.Context, in MethodInput, actor string) (m *Method, created bool, err error) {
+	in.QC = in.QC.withDefaults()
 	if err := checkMethod(in); err != nil {
 		return nil, false, err
+	}
+	qcJSON, err := json.Marshal(in.QC)
+	if err != nil {
+		return nil, false, fmt.Errorf("store: marshal qc: %w", err)
 	}
 	policy, policyJSON, err := normalisePolicy(in.Acceptance)
 	if err != nil {
@@ -160,10 +170,10 @@ func (db *DB) CreateMethod(ctx context.Context, in MethodInput, actor string) (m
 			revision = latest.Revision + 1
 		}
 		m, err = scanMethod(tx.QueryRow(ctx, `
-INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by, description)
-VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9)
+INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by, qc, description)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10)
 RETURNING `+methodColumns,
-			in.Name, revision, string(in.Model), string(in.Weighting), in.Confidence, analytesJSON, policyJSON, actor,
+			in.Name, revision, string(in.Model), string(in.Weighting), in.Confidence, analytesJSON, policyJSON, actor, qcJSON,
 			in.Description))
 		if err != nil {
 			return classify("insert method "+in.Name, err)
@@ -175,7 +185,8 @@ RETURNING `+methodColumns,
 		}
 		return writeAudit(ctx, tx, actor, action, entityMethod, fmt.Sprintf("%s/%d", m.Name, m.Revision),
 			map[string]any{"name": m.Name, "revision": m.Revision, "model": m.Model, "weighting": m.Weighting,
-				"confidence": m.Confidence, "analytes": m.Analytes, "acceptance": json.RawMessage(policyJSON)})
+				"confidence": m.Confidence, "analytes": m.Analytes, "acceptance": json.RawMessage(policyJSON),
+				"qc": json.RawMessage(qcJSON)})
 	})
 	if err != nil {
 		return nil, false, classify("create method", err)
@@ -186,11 +197,12 @@ RETURNING `+methodColumns,
 func sameMethod(m *Method, in MethodInput) bool {
 	return m.Model == in.Model && m.Weighting == in.Weighting && m.Confidence == in.Confidence &&
 		m.Description == in.Description &&
-		slices.Equal(m.Analytes, in.Analytes) && reflect.DeepEqual(m.Acceptance, in.Acceptance)
+		slices.Equal(m.Analytes, in.Analytes) && reflect.DeepEqual(m.Acceptance, in.Acceptance) &&
+		m.QC.equal(in.QC)
 }
 
 const (
-	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by, description`
+	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by, qc, description`
 	sqlSelectMethod = `SELECT ` + methodColumns + ` FROM methods`
 )
 
@@ -199,9 +211,10 @@ func scanMethod(row pgx.Row) (*Method, error) {
 		m                    Method
 		model, weighting     string
 		analytes, acceptance []byte
+		qc                   []byte
 	)
 	if err := row.Scan(&m.Name, &m.Revision, &model, &weighting, &m.Confidence, &analytes, &acceptance, &m.CreatedAt, &m.CreatedBy,
-		&m.Description); err != nil {
+		&qc, &m.Description); err != nil {
 		return nil, err
 	}
 	m.Model, m.Weighting = calib.Model(model), calib.Weighting(weighting)
@@ -211,6 +224,10 @@ func scanMethod(row pgx.Row) (*Method, error) {
 	if err := json.Unmarshal(acceptance, &m.Acceptance); err != nil {
 		return nil, fmt.Errorf("decode acceptance of method %s/%d: %w", m.Name, m.Revision, err)
 	}
+	if err := json.Unmarshal(qc, &m.QC); err != nil {
+		return nil, fmt.Errorf("decode qc of method %s/%d: %w", m.Name, m.Revision, err)
+	}
+	m.QC = m.QC.withDefaults()
 	return &m, nil
 }
 

@@ -149,8 +149,8 @@ func TestMigrateDownAndUpAgain(t *testing.T) {
 		t.Fatal(err)
 	}
 	latest := store.LatestVersion()
-	// Versions may have gaps (each issue owns its number), so step down by
-	// the number of migrations, not by the latest version.
+	// Versions are assigned per change and may leave gaps, so the steps down
+	// to zero are the migrations embedded, not the latest version number.
 	ups, err := fs.Glob(migrations.FS, "*.up.sql")
 	if err != nil {
 		t.Fatal(err)

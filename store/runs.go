@@ -36,6 +36,9 @@ type Sample struct {
 	Analyte   string    `json:"analyte"`
 	Responses []float64 `json:"responses"`
 	Dilution  float64   `json:"dilution"` // 0 in RunInput means 1
+	// AcquiredAt is when a sample posted after its run was acquired; nil for
+	// a sample posted with its run, which was acquired with it.
+	AcquiredAt *time.Time `json:"acquired_at,omitempty"`
 }
 
 // RunInput is a run as the api received and validated it.
@@ -277,8 +280,8 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10)`
 INSERT INTO readings (run_id, analyte, level, replicate, standard, concentration, response)
 SELECT $1, * FROM unnest($2::text[], $3::text[], $4::int[], $5::int[], $6::float8[], $7::float8[])`
 	sqlInsertSample = `
-INSERT INTO run_samples (run_id, position, sample_id, analyte, responses, dilution)
-VALUES ($1, $2, $3, $4, $5, $6)`
+INSERT INTO run_samples (run_id, position, sample_id, analyte, responses, dilution, acquired_at)
+VALUES ($1, $2, $3, $4, $5, $6, $7)`
 	sqlInsertCurve = `
 INSERT INTO curves (id, run_id, method, method_revision, instrument, analyte, unit, model, weighting, verdict,
                     engine_version, report, acquired_at, created_by, slope, intercept, residual_sd, r_squared, lod,
@@ -354,9 +357,19 @@ func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (
 				return &Error{Kind: KindInvalid, Field: "/method",
 					Message: fmt.Sprintf("method %q has no revision %d", in.Method, in.MethodRevision), Err: err}
 			}
+			if pgCode(err) == codeUniqueViolation {
+				return &Error{Kind: KindInvalid, Field: "/samples",
+					Message: "a sample id appears twice for one analyte; sample ids are unique per analyte within a run", Err: err}
+			}
 			return classify("insert run "+runID, err)
 		}
-		return nil
+		// Every sample is quantified against its analyte's curve now, in the
+		// transaction that stores it.
+		events := &eventBuffer{}
+		if err := insertResults(ctx, tx, runID, runResults(&in, prepared), in.Actor, CauseRunCreate, events); err != nil {
+			return err
+		}
+		return flushEvents(ctx, tx, events)
 	})
 	if err != nil {
 		return nil, classify("create run", err)
@@ -395,7 +408,7 @@ func runBatch(in *RunInput, runID string, payload []byte, curves []preparedCurve
 	}
 	b.Queue(sqlInsertReadings, runID, analytes, levels, replicates, standard, concs, responses)
 	for i, s := range in.Samples {
-		b.Queue(sqlInsertSample, runID, i, s.ID, s.Analyte, s.Responses, s.Dilution)
+		b.Queue(sqlInsertSample, runID, i, s.ID, s.Analyte, s.Responses, s.Dilution, s.AcquiredAt)
 	}
 
 	curveIDs := make([]string, len(curves))
@@ -427,6 +440,31 @@ func runBatch(in *RunInput, runID string, payload []byte, curves []preparedCurve
 		}
 	}
 	return b, nil
+}
+
+// runResults quantifies the samples of a new run against its new curves,
+// each pending review.
+func runResults(in *RunInput, curves []preparedCurve) []pendingResult {
+	byAnalyte := map[string]*preparedCurve{}
+	for i := range curves {
+		byAnalyte[curves[i].in.Analyte] = &curves[i]
+	}
+	var out []pendingResult
+	for i, s := range in.Samples {
+		c, ok := byAnalyte[s.Analyte]
+		if !ok {
+			continue // the api refuses such a sample; nothing to quantify it against
+		}
+		f := &curveFacts{ID: c.id, Status: StatusPendingReview, Verdict: c.verdict, Fitted: c.scalars.slope != nil, FailedChecks: c.failed}
+		at := in.AcquiredAt
+		if s.AcquiredAt != nil {
+			at = *s.AcquiredAt
+		}
+		state, reason := releaseOf(f, at)
+		out = append(out, pendingResult{position: i, curveID: c.id, unit: c.in.Unit, acquiredAt: at,
+			q: quantify(c.in.Report, s.Responses, s.Dilution), state: state, reason: reason})
+	}
+	return out
 }
 
 // Run is a stored run: its readings grouped back into standards in the order

@@ -168,6 +168,12 @@ func (db *DB) LookupToken(ctx context.Context, secret string) (Token, error) {
 	)
 	err := db.Pool.QueryRow(ctx, `SELECT id, name, scopes, hash, revoked_at FROM tokens WHERE hash = $1`, hash).
 		Scan(&t.ID, &t.Name, &t.Scopes, &stored, &revokedAt)
+	return liveToken(t, hash, stored, revokedAt, err)
+}
+
+// liveToken decides a token lookup: the row must exist, carry the hash and
+// not be revoked.
+func liveToken(t Token, hash, stored []byte, revokedAt *time.Time, err error) (Token, error) {
 	if errors.Is(err, pgx.ErrNoRows) {
 		return Token{}, Errorf(KindNotFound, "unknown token")
 	}

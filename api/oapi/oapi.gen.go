@@ -26,6 +26,7 @@ import (
 // Defines values for CheckName.
 const (
 	CheckBackCalculation       CheckName = "back_calculation"
+	CheckDrift                 CheckName = "drift"
 	CheckHomoscedasticity      CheckName = "homoscedasticity"
 	CheckIntercept             CheckName = "intercept"
 	CheckLackOfFit             CheckName = "lack_of_fit"
@@ -41,6 +42,8 @@ const (
 func (e CheckName) Valid() bool {
 	switch e {
 	case CheckBackCalculation:
+		return true
+	case CheckDrift:
 		return true
 	case CheckHomoscedasticity:
 		return true
@@ -59,6 +62,36 @@ func (e CheckName) Valid() bool {
 	case CheckRelativeStandardError:
 		return true
 	case CheckResidualRuns:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for ControlRule.
+const (
+	Rule10X ControlRule = "10x"
+	Rule12S ControlRule = "1-2s"
+	Rule13S ControlRule = "1-3s"
+	Rule22S ControlRule = "2-2s"
+	Rule41S ControlRule = "4-1s"
+	RuleR4S ControlRule = "R-4s"
+)
+
+// Valid indicates whether the value is a known member of the ControlRule enum.
+func (e ControlRule) Valid() bool {
+	switch e {
+	case Rule10X:
+		return true
+	case Rule12S:
+		return true
+	case Rule13S:
+		return true
+	case Rule22S:
+		return true
+	case Rule41S:
+		return true
+	case RuleR4S:
 		return true
 	default:
 		return false
@@ -125,6 +158,45 @@ func (e Model) Valid() bool {
 	}
 }
 
+// Defines values for ReleaseState.
+const (
+	ReleaseProvisional ReleaseState = "provisional"
+	ReleaseReleasable  ReleaseState = "releasable"
+	ReleaseWithheld    ReleaseState = "withheld"
+)
+
+// Valid indicates whether the value is a known member of the ReleaseState enum.
+func (e ReleaseState) Valid() bool {
+	switch e {
+	case ReleaseProvisional:
+		return true
+	case ReleaseReleasable:
+		return true
+	case ReleaseWithheld:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for ResultEventKind.
+const (
+	ResultEventCreated      ResultEventKind = "created"
+	ResultEventStateChanged ResultEventKind = "state_changed"
+)
+
+// Valid indicates whether the value is a known member of the ResultEventKind enum.
+func (e ResultEventKind) Valid() bool {
+	switch e {
+	case ResultEventCreated:
+		return true
+	case ResultEventStateChanged:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for ReviewDecision.
 const (
 	ReviewApprove ReviewDecision = "approve"
@@ -185,6 +257,33 @@ func (e Scope) Valid() bool {
 	}
 }
 
+// Defines values for TrendParameter.
+const (
+	TrendParameterIntercept  TrendParameter = "intercept"
+	TrendParameterLod        TrendParameter = "lod"
+	TrendParameterRSquared   TrendParameter = "r_squared"
+	TrendParameterResidualSd TrendParameter = "residual_sd"
+	TrendParameterSlope      TrendParameter = "slope"
+)
+
+// Valid indicates whether the value is a known member of the TrendParameter enum.
+func (e TrendParameter) Valid() bool {
+	switch e {
+	case TrendParameterIntercept:
+		return true
+	case TrendParameterLod:
+		return true
+	case TrendParameterRSquared:
+		return true
+	case TrendParameterResidualSd:
+		return true
+	case TrendParameterSlope:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for Verdict.
 const (
 	VerdictFail Verdict = "fail"
@@ -197,6 +296,24 @@ func (e Verdict) Valid() bool {
 	case VerdictFail:
 		return true
 	case VerdictPass:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for VerificationKind.
+const (
+	VerificationContinuing VerificationKind = "continuing"
+	VerificationInitial    VerificationKind = "initial"
+)
+
+// Valid indicates whether the value is a known member of the VerificationKind enum.
+func (e VerificationKind) Valid() bool {
+	switch e {
+	case VerificationContinuing:
+		return true
+	case VerificationInitial:
 		return true
 	default:
 		return false
@@ -264,6 +381,11 @@ type AcceptanceInput struct {
 
 	// RunsAlpha A significance level.
 	RunsAlpha *Alpha `json:"runs_alpha,omitempty"`
+
+	// VerificationTolerancePct |%D| a verification standard (ICV/CCV) may show against its
+	// nominal value. Default 20, after US EPA SW-846 Method 8000D
+	// calibration verification; the laboratory's method sets its own.
+	VerificationTolerancePct *float64 `json:"verification_tolerance_pct,omitempty"`
 }
 
 // AcceptancePolicy Every threshold in force, defaults filled in.
@@ -282,6 +404,9 @@ type AcceptancePolicy struct {
 	OutlierCooksD           float64     `json:"outlier_cooks_d"`
 	OutlierStudentized      float64     `json:"outlier_studentized"`
 	RunsAlpha               float64     `json:"runs_alpha"`
+
+	// VerificationTolerancePct The |%D| allowed for verification standards (default 20, US EPA SW-846 Method 8000D).
+	VerificationTolerancePct float64 `json:"verification_tolerance_pct"`
 }
 
 // Alpha A significance level.
@@ -334,7 +459,13 @@ type Check struct {
 
 	// Name A check of the acceptance policy: `min_levels`, `mandel`,
 	// `lack_of_fit`, `homoscedasticity`, `back_calculation`, `r_squared`,
-	// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`.
+	// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`,
+	// `drift`. `drift` is computed at ingest: the new curve's slope against
+	// the mean and SD of the same instrument and analyte's 20 most recent
+	// approved curves, with the Westgard reject rules (see
+	// `GET /v1/trends`). It is advisory unless the method lists it as
+	// mandatory, and it is left out when fewer than 10 approved curves
+	// exist, unless it is mandatory (then it is reported as not computed).
 	Name   CheckName `json:"name"`
 	Passed bool      `json:"passed"`
 
@@ -347,7 +478,13 @@ type Check struct {
 
 // CheckName A check of the acceptance policy: `min_levels`, `mandel`,
 // `lack_of_fit`, `homoscedasticity`, `back_calculation`, `r_squared`,
-// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`.
+// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`,
+// `drift`. `drift` is computed at ingest: the new curve's slope against
+// the mean and SD of the same instrument and analyte's 20 most recent
+// approved curves, with the Westgard reject rules (see
+// `GET /v1/trends`). It is advisory unless the method lists it as
+// mandatory, and it is left out when fewer than 10 approved curves
+// exist, unless it is mandatory (then it is reported as not computed).
 type CheckName string
 
 // Concentration A nominal concentration, in the analyte's unit.
@@ -355,6 +492,22 @@ type Concentration = float64
 
 // Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
 type Confidence = float64
+
+// ControlLimits Shewhart control limits (ISO 7870-2); null without a baseline.
+type ControlLimits struct {
+	ActionHigh  float64 `json:"action_high"`
+	ActionLow   float64 `json:"action_low"`
+	Centre      float64 `json:"centre"`
+	WarningHigh float64 `json:"warning_high"`
+	WarningLow  float64 `json:"warning_low"`
+}
+
+// ControlRule A Westgard rule (Westgard et al., Clin. Chem. 27 (1981) 493): `1-2s`
+// one value beyond ±2 SD (warning); `1-3s` one beyond ±3 SD; `2-2s` two
+// consecutive beyond the same 2 SD limit; `R-4s` two consecutive, one
+// above +2 SD and the other below −2 SD; `4-1s` four consecutive beyond
+// the same 1 SD limit; `10x` ten consecutive on the same side of the mean.
+type ControlRule string
 
 // Cursor Opaque keyset cursor (base64url without padding).
 type Cursor = string
@@ -392,8 +545,11 @@ type Curve struct {
 
 	// EngineVersion The calibration engine that computed the fit, e.g. `calib/1.0.0`.
 	EngineVersion string `json:"engine_version"`
-	ID            UUID   `json:"id"`
-	Instrument    string `json:"instrument"`
+
+	// Exclusion Present on an exclusion revision.
+	Exclusion  *Exclusion `json:"exclusion,omitempty"`
+	ID         UUID       `json:"id"`
+	Instrument string     `json:"instrument"`
 
 	// Levels Distinct levels in the fit.
 	Levels int `json:"levels"`
@@ -426,7 +582,10 @@ type Curve struct {
 
 	// Review The review decision, present once the curve is reviewed.
 	Review *Review `json:"review,omitempty"`
-	RunID  UUID    `json:"run_id"`
+
+	// RevisionOf Present on an exclusion revision, the curve it was refitted from.
+	RevisionOf *UUID `json:"revision_of,omitempty"`
+	RunID      UUID  `json:"run_id"`
 
 	// StandardErrors Standard errors of the coefficients, same order.
 	StandardErrors []float64 `json:"standard_errors"`
@@ -457,6 +616,28 @@ type Curve struct {
 
 	// ZeroHandling How zero concentrations or responses were kept from producing infinite weights; empty when none arose.
 	ZeroHandling string `json:"zero_handling"`
+}
+
+// CurveInForce defines model for CurveInForce.
+type CurveInForce struct {
+	// At The moment asked about.
+	At time.Time `json:"at"`
+
+	// Basis Why this curve is in force, in words.
+	Basis string `json:"basis"`
+
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions     `json:"cautions"`
+	Curve    CurveSummary `json:"curve"`
+
+	// ExpiresAt When it leaves force by the method's maximum age; null without one.
+	ExpiresAt *time.Time `json:"expires_at"`
+
+	// LastVerification The latest verification at or before `at`; null when none.
+	LastVerification *Verification `json:"last_verification"`
 }
 
 // CurveList defines model for CurveList.
@@ -534,6 +715,41 @@ type CurveSummary struct {
 // Dilution Dilution factor applied after inversion (reported = curve value × dilution); 1 when absent.
 type Dilution = float64
 
+// Exclusion Present on an exclusion revision.
+type Exclusion struct {
+	Actor string    `json:"actor"`
+	At    time.Time `json:"at"`
+
+	// Points Every reading the revision excludes.
+	Points []struct {
+		Level     string `json:"level"`
+		Replicate int    `json:"replicate"`
+	} `json:"points"`
+	RangeReason *string `json:"range_reason"`
+	Reason      string  `json:"reason"`
+	RevisionOf  UUID    `json:"revision_of"`
+}
+
+// ExclusionPoint defines model for ExclusionPoint.
+type ExclusionPoint struct {
+	// Level A name of an instrument, analyte, method, level or sample.
+	Level Identifier `json:"level"`
+
+	// Replicate One reading of the level, 1-based in acquisition order; every reading of the level when absent.
+	Replicate *int `json:"replicate,omitempty"`
+}
+
+// ExclusionRequest defines model for ExclusionRequest.
+type ExclusionRequest struct {
+	Points []ExclusionPoint `json:"points"`
+
+	// RangeReason Why the range may shrink at both ends; required when the lowest and highest levels are both excluded.
+	RangeReason *Text `json:"range_reason,omitempty"`
+
+	// Reason Why the readings are excluded.
+	Reason Text `json:"reason"`
+}
+
 // Health defines model for Health.
 type Health struct {
 	Status HealthStatus `json:"status"`
@@ -545,12 +761,43 @@ type HealthStatus string
 // Identifier A name of an instrument, analyte, method, level or sample.
 type Identifier = string
 
+// InstrumentPredictionRequest defines model for InstrumentPredictionRequest.
+type InstrumentPredictionRequest struct {
+	// Analyte A name of an instrument, analyte, method, level or sample.
+	Analyte Identifier `json:"analyte"`
+
+	// At The moment whose curve in force is used; now when absent.
+	At *time.Time `json:"at,omitempty"`
+
+	// Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
+	Confidence *Confidence        `json:"confidence,omitempty"`
+	Samples    []PredictionSample `json:"samples"`
+}
+
 // Interval Confidence interval of the concentration. When `bounded` is false, `low` and `high` are null.
 type Interval struct {
 	Bounded bool     `json:"bounded"`
 	High    *float64 `json:"high"`
 	Level   float64  `json:"level"`
 	Low     *float64 `json:"low"`
+}
+
+// LateSampleInput defines model for LateSampleInput.
+type LateSampleInput struct {
+	// AcquiredAt When the sample was measured; the time received when absent.
+	AcquiredAt *time.Time `json:"acquired_at,omitempty"`
+
+	// Analyte A name of an instrument, analyte, method, level or sample.
+	Analyte Identifier `json:"analyte"`
+
+	// Dilution Dilution factor applied after inversion (reported = curve value × dilution); 1 when absent.
+	Dilution *Dilution `json:"dilution,omitempty"`
+
+	// ID A name of an instrument, analyte, method, level or sample.
+	ID Identifier `json:"id"`
+
+	// Responses Replicate readings, in acquisition order.
+	Responses Responses `json:"responses"`
 }
 
 // Limits Detection and quantification limits, in concentration units except `critical_value` (a response); null when not computed.
@@ -590,11 +837,15 @@ type Method struct {
 	// Description Empty when none was given.
 	Description string `json:"description"`
 
+	// MaxCurveAgeHours Null when curves do not expire.
+	MaxCurveAgeHours *float64 `json:"max_curve_age_hours"`
+
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
-	Model    Model  `json:"model"`
-	Name     string `json:"name"`
-	Revision int    `json:"revision"`
+	Model                Model  `json:"model"`
+	Name                 string `json:"name"`
+	PendingCurvesInForce bool   `json:"pending_curves_in_force"`
+	Revision             int    `json:"revision"`
 
 	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
 	// replicate SDs; `auto` chooses among the others by the smallest sum of
@@ -620,12 +871,18 @@ type MethodRequest struct {
 	// Description Free text for people; no control characters except tab, line feed and carriage return.
 	Description *Text `json:"description,omitempty"`
 
+	// MaxCurveAgeHours How long after acquisition a curve stays in force; no limit when absent.
+	MaxCurveAgeHours *float64 `json:"max_curve_age_hours,omitempty"`
+
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
 	Model Model `json:"model"`
 
 	// Name A name of an instrument, analyte, method, level or sample.
 	Name Identifier `json:"name"`
+
+	// PendingCurvesInForce Whether a passing curve that awaits review may be the curve in force (default false).
+	PendingCurvesInForce *bool `json:"pending_curves_in_force,omitempty"`
 
 	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
 	// replicate SDs; `auto` chooses among the others by the smallest sum of
@@ -679,6 +936,8 @@ type PredictionResult struct {
 
 	// Flags `below_range`, `above_range`, `extrapolated`, `below_lod`,
 	// `below_loq`, `negative`, `no_root_in_range`, `unbounded_interval`.
+	// Stored sample results may also carry `no_curve` and
+	// `not_quantifiable` (see `SampleResult`).
 	Flags []string `json:"flags"`
 	ID    string   `json:"id"`
 
@@ -748,11 +1007,63 @@ type Range struct {
 	Low  *float64 `json:"low"`
 }
 
+// ReleaseState `provisional` while the curve awaits review; `releasable` once it is
+// approved and no verification failed before the sample; `withheld`
+// when the curve is rejected, failed, unfittable or superseded, or a
+// verification failed before the sample. `release_reason` says which.
+type ReleaseState string
+
 // Response One instrument reading (may be negative after blank correction).
 type Response = float64
 
 // Responses Replicate readings, in acquisition order.
 type Responses = []Response
+
+// ResultEvent defines model for ResultEvent.
+type ResultEvent struct {
+	Analyte string    `json:"analyte"`
+	At      time.Time `json:"at"`
+
+	// Cause `run.create`, `samples.add`, `curve.review`, `curve.verification` or `curve.exclusion`.
+	Cause         string          `json:"cause"`
+	Concentration *float64        `json:"concentration"`
+	CurveID       UUID            `json:"curve_id"`
+	Kind          ResultEventKind `json:"kind"`
+
+	// PreviousState The state before; null for `created`.
+	PreviousState *ReleaseState `json:"previous_state"`
+	Reason        string        `json:"reason"`
+
+	// ReleaseState `provisional` while the curve awaits review; `releasable` once it is
+	// approved and no verification failed before the sample; `withheld`
+	// when the curve is rejected, failed, unfittable or superseded, or a
+	// verification failed before the sample. `release_reason` says which.
+	ReleaseState ReleaseState `json:"release_state"`
+	ResultID     int64        `json:"result_id"`
+	RunID        UUID         `json:"run_id"`
+	SampleID     string       `json:"sample_id"`
+
+	// Seq Position in the feed; increases with every event.
+	Seq  int64  `json:"seq"`
+	Unit string `json:"unit"`
+}
+
+// ResultEventKind defines model for ResultEvent.Kind.
+type ResultEventKind string
+
+// ResultFeed defines model for ResultFeed.
+type ResultFeed struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions      `json:"cautions"`
+	Events   []ResultEvent `json:"events"`
+	HasMore  bool          `json:"has_more"`
+
+	// NextCursor Pass as `since` for the next page; never null.
+	NextCursor string `json:"next_cursor"`
+}
 
 // Review The review decision, present once the curve is reviewed.
 type Review struct {
@@ -774,6 +1085,23 @@ type ReviewRequest struct {
 
 	// Reason Why; required to approve a curve whose verdict is `fail`.
 	Reason *Text `json:"reason,omitempty"`
+}
+
+// RuleViolation defines model for RuleViolation.
+type RuleViolation struct {
+	// CurveIds The curves involved, in time order.
+	CurveIds []UUID `json:"curve_ids"`
+
+	// Reject False for the 1-2s warning, true for the reject rules.
+	Reject bool `json:"reject"`
+
+	// Rule A Westgard rule (Westgard et al., Clin. Chem. 27 (1981) 493): `1-2s`
+	// one value beyond ±2 SD (warning); `1-3s` one beyond ±3 SD; `2-2s` two
+	// consecutive beyond the same 2 SD limit; `R-4s` two consecutive, one
+	// above +2 SD and the other below −2 SD; `4-1s` four consecutive beyond
+	// the same 1 SD limit; `10x` ten consecutive on the same side of the mean.
+	Rule   ControlRule `json:"rule"`
+	Source string      `json:"source"`
 }
 
 // Run A run as stored.
@@ -857,6 +1185,17 @@ type RunRequest struct {
 	Standards []StandardInput `json:"standards"`
 }
 
+// RunResults defines model for RunResults.
+type RunResults struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions       `json:"cautions"`
+	Results  []SampleResult `json:"results"`
+	RunID    UUID           `json:"run_id"`
+}
+
 // RunSample defines model for RunSample.
 type RunSample struct {
 	Analyte string `json:"analyte"`
@@ -880,6 +1219,70 @@ type RunSampleInput struct {
 
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
+}
+
+// SampleResult A sample quantified against a curve when it was stored.
+type SampleResult struct {
+	AcquiredAt time.Time `json:"acquired_at"`
+	Analyte    string    `json:"analyte"`
+
+	// Concentration After dilution; null when the curve gave no value (see `flags`).
+	Concentration *float64  `json:"concentration"`
+	CreatedAt     time.Time `json:"created_at"`
+	CreatedBy     string    `json:"created_by"`
+
+	// CurveID The curve the concentration came from.
+	CurveID UUID `json:"curve_id"`
+
+	// Dilution The dilution factor applied after inversion (reported = curve value × dilution).
+	Dilution float64 `json:"dilution"`
+
+	// Flags The prediction flags of `POST /v1/curves/{id}/predictions`, and
+	// `no_curve` (the curve could not be fitted) or `not_quantifiable`
+	// (the engine refused the readings; `interval_method` says why).
+	Flags []string `json:"flags"`
+
+	// ID The result's id, as the change feed names it.
+	ID int64 `json:"id"`
+
+	// Interval Confidence interval of the concentration. When `bounded` is false, `low` and `high` are null.
+	Interval       Interval `json:"interval"`
+	IntervalMethod string   `json:"interval_method"`
+	MeanResponse   float64  `json:"mean_response"`
+	Readings       int      `json:"readings"`
+	ReleaseReason  string   `json:"release_reason"`
+
+	// ReleaseState `provisional` while the curve awaits review; `releasable` once it is
+	// approved and no verification failed before the sample; `withheld`
+	// when the curve is rejected, failed, unfittable or superseded, or a
+	// verification failed before the sample. `release_reason` says which.
+	ReleaseState  ReleaseState `json:"release_state"`
+	Responses     []float64    `json:"responses"`
+	RunID         UUID         `json:"run_id"`
+	SampleID      string       `json:"sample_id"`
+	StandardError *float64     `json:"standard_error"`
+
+	// StateChangedAt When the release state or its reason last changed.
+	StateChangedAt time.Time `json:"state_changed_at"`
+
+	// Unit UCUM code of the analyte's concentration unit, which `concentration`, `standard_error` and `interval` are in.
+	Unit string `json:"unit"`
+}
+
+// SampleResults defines model for SampleResults.
+type SampleResults struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions       `json:"cautions"`
+	Results  []SampleResult `json:"results"`
+	SampleID string         `json:"sample_id"`
+}
+
+// SamplesRequest defines model for SamplesRequest.
+type SamplesRequest struct {
+	Samples []LateSampleInput `json:"samples"`
 }
 
 // Scope defines model for Scope.
@@ -929,6 +1332,71 @@ type TokenRequest struct {
 	Scopes []Scope    `json:"scopes"`
 }
 
+// Trend defines model for Trend.
+type Trend struct {
+	Analyte  string        `json:"analyte"`
+	Baseline TrendBaseline `json:"baseline"`
+
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions   Cautions `json:"cautions"`
+	Instrument string   `json:"instrument"`
+
+	// Limits Shewhart control limits (ISO 7870-2); null without a baseline.
+	Limits *ControlLimits `json:"limits"`
+
+	// Notes What to keep in mind reading this trend (a provisional baseline, curves without a value).
+	Notes []string `json:"notes"`
+
+	// Parameter The curve parameter a trend follows.
+	Parameter TrendParameter `json:"parameter"`
+	Points    []TrendPoint   `json:"points"`
+
+	// Truncated True when the window held more than 1,000 curves and only the oldest 1,000 were read.
+	Truncated  bool            `json:"truncated"`
+	Violations []RuleViolation `json:"violations"`
+}
+
+// TrendBaseline defines model for TrendBaseline.
+type TrendBaseline struct {
+	CurveIds []UUID   `json:"curve_ids"`
+	Mean     *float64 `json:"mean"`
+	N        int      `json:"n"`
+
+	// Sd Sample standard deviation (n − 1); null when there is no baseline.
+	Sd *float64 `json:"sd"`
+
+	// Selection How the baseline curves were chosen.
+	Selection string `json:"selection"`
+}
+
+// TrendParameter The curve parameter a trend follows.
+type TrendParameter string
+
+// TrendPoint defines model for TrendPoint.
+type TrendPoint struct {
+	AcquiredAt time.Time `json:"acquired_at"`
+	CurveID    UUID      `json:"curve_id"`
+
+	// Evaluated Whether the rules were evaluated on this value (false for rejected curves and missing values).
+	Evaluated  bool `json:"evaluated"`
+	InBaseline bool `json:"in_baseline"`
+
+	// Status Review state. A new curve is `pending_review`; a review is final.
+	Status CurveStatus `json:"status"`
+
+	// Value The parameter's value; null when the curve has none (a failed fit, no intercept).
+	Value *float64 `json:"value"`
+
+	// Verdict `fail` when any mandatory check failed or the curve could not be fitted.
+	Verdict Verdict `json:"verdict"`
+
+	// Violations The rules whose violations involve this value.
+	Violations []ControlRule `json:"violations"`
+}
+
 // UUID defines model for UUID.
 type UUID = openapi_types.UUID
 
@@ -944,6 +1412,80 @@ type VarianceModel struct {
 
 // Verdict `fail` when any mandatory check failed or the curve could not be fitted.
 type Verdict string
+
+// Verification defines model for Verification.
+type Verification struct {
+	At            time.Time `json:"at"`
+	Concentration float64   `json:"concentration"`
+	CreatedAt     time.Time `json:"created_at"`
+	CreatedBy     string    `json:"created_by"`
+	CurveID       UUID      `json:"curve_id"`
+	Detail        string    `json:"detail"`
+
+	// DifferencePct %D = 100·(found − nominal)/nominal.
+	DifferencePct *float64 `json:"difference_pct"`
+
+	// Found Concentration read back; null when the curve has no root for the response.
+	Found *float64 `json:"found"`
+	ID    UUID     `json:"id"`
+
+	// Kind `initial` (ICV) or `continuing` (CCV) calibration verification.
+	Kind  VerificationKind `json:"kind"`
+	Level string           `json:"level"`
+
+	// LimitPct The |%D| allowed by the curve's method revision.
+	LimitPct    float64   `json:"limit_pct"`
+	Passed      bool      `json:"passed"`
+	RecoveryPct *float64  `json:"recovery_pct"`
+	Responses   []float64 `json:"responses"`
+
+	// Source Where the limit's default comes from.
+	Source string `json:"source"`
+}
+
+// VerificationCreated defines model for VerificationCreated.
+type VerificationCreated struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions `json:"cautions"`
+
+	// ResultsChanged How many results changed release state because of it.
+	ResultsChanged int          `json:"results_changed"`
+	Verification   Verification `json:"verification"`
+}
+
+// VerificationKind `initial` (ICV) or `continuing` (CCV) calibration verification.
+type VerificationKind string
+
+// VerificationList defines model for VerificationList.
+type VerificationList struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions      Cautions       `json:"cautions"`
+	Verifications []Verification `json:"verifications"`
+}
+
+// VerificationRequest defines model for VerificationRequest.
+type VerificationRequest struct {
+	// At When the standard was measured.
+	At time.Time `json:"at"`
+
+	// Concentration Nominal concentration, > 0, in the analyte's unit.
+	Concentration float64 `json:"concentration"`
+
+	// Kind `initial` (ICV) or `continuing` (CCV) calibration verification.
+	Kind VerificationKind `json:"kind"`
+
+	// Level A name of an instrument, analyte, method, level or sample.
+	Level Identifier `json:"level"`
+
+	// Responses Replicate readings, in acquisition order.
+	Responses Responses `json:"responses"`
+}
 
 // WeightCandidate defines model for WeightCandidate.
 type WeightCandidate struct {
@@ -973,6 +1515,9 @@ type CurveID = UUID
 
 // IdempotencyKey defines model for IdempotencyKey.
 type IdempotencyKey = string
+
+// Instrument A name of an instrument, analyte, method, level or sample.
+type Instrument = Identifier
 
 // RunID defines model for RunID.
 type RunID = UUID
@@ -1031,10 +1576,27 @@ type ListCurvesParams struct {
 	Cursor *Cursor `form:"cursor,omitempty" json:"cursor,omitempty"`
 }
 
+// GetCurveInForceParams defines parameters for GetCurveInForce.
+type GetCurveInForceParams struct {
+	Analyte Identifier `form:"analyte" json:"analyte"`
+
+	// At The moment, RFC 3339; now when absent.
+	At *time.Time `form:"at,omitempty" json:"at,omitempty"`
+}
+
 // GetMethodParams defines parameters for GetMethod.
 type GetMethodParams struct {
 	// Revision A specific revision; the latest when absent.
 	Revision *int `form:"revision,omitempty" json:"revision,omitempty"`
+}
+
+// ListResultEventsParams defines parameters for ListResultEvents.
+type ListResultEventsParams struct {
+	// Since The `next_cursor` of the previous page; absent for the start of the feed.
+	Since *Cursor `form:"since,omitempty" json:"since,omitempty"`
+
+	// Limit Page size.
+	Limit *int `form:"limit,omitempty" json:"limit,omitempty"`
 }
 
 // CreateRunParams defines parameters for CreateRun.
@@ -1056,17 +1618,61 @@ type CreateRunParams struct {
 	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
 }
 
+// GetTrendParams defines parameters for GetTrend.
+type GetTrendParams struct {
+	Instrument Identifier      `form:"instrument" json:"instrument"`
+	Analyte    Identifier      `form:"analyte" json:"analyte"`
+	Parameter  *TrendParameter `form:"parameter,omitempty" json:"parameter,omitempty"`
+
+	// From Earliest `acquired_at`, inclusive.
+	From *time.Time `form:"from,omitempty" json:"from,omitempty"`
+
+	// To Latest `acquired_at`, exclusive.
+	To *time.Time `form:"to,omitempty" json:"to,omitempty"`
+
+	// Baseline How many approved curves, from the start of the window, make the baseline.
+	Baseline *int `form:"baseline,omitempty" json:"baseline,omitempty"`
+}
+
+// GetTrendPlotSVGParams defines parameters for GetTrendPlotSVG.
+type GetTrendPlotSVGParams struct {
+	Instrument Identifier      `form:"instrument" json:"instrument"`
+	Analyte    Identifier      `form:"analyte" json:"analyte"`
+	Parameter  *TrendParameter `form:"parameter,omitempty" json:"parameter,omitempty"`
+
+	// From Earliest `acquired_at`, inclusive.
+	From *time.Time `form:"from,omitempty" json:"from,omitempty"`
+
+	// To Latest `acquired_at`, exclusive.
+	To *time.Time `form:"to,omitempty" json:"to,omitempty"`
+
+	// Baseline How many approved curves, from the start of the window, make the baseline.
+	Baseline *int `form:"baseline,omitempty" json:"baseline,omitempty"`
+}
+
+// CreateExclusionJSONRequestBody defines body for CreateExclusion for application/json ContentType.
+type CreateExclusionJSONRequestBody = ExclusionRequest
+
 // CreatePredictionsJSONRequestBody defines body for CreatePredictions for application/json ContentType.
 type CreatePredictionsJSONRequestBody = PredictionRequest
 
 // ReviewCurveJSONRequestBody defines body for ReviewCurve for application/json ContentType.
 type ReviewCurveJSONRequestBody = ReviewRequest
 
+// CreateVerificationJSONRequestBody defines body for CreateVerification for application/json ContentType.
+type CreateVerificationJSONRequestBody = VerificationRequest
+
+// CreateInstrumentPredictionsJSONRequestBody defines body for CreateInstrumentPredictions for application/json ContentType.
+type CreateInstrumentPredictionsJSONRequestBody = InstrumentPredictionRequest
+
 // CreateMethodJSONRequestBody defines body for CreateMethod for application/json ContentType.
 type CreateMethodJSONRequestBody = MethodRequest
 
 // CreateRunJSONRequestBody defines body for CreateRun for application/json ContentType.
 type CreateRunJSONRequestBody = RunRequest
+
+// CreateRunSamplesJSONRequestBody defines body for CreateRunSamples for application/json ContentType.
+type CreateRunSamplesJSONRequestBody = SamplesRequest
 
 // CreateTokenJSONRequestBody defines body for CreateToken for application/json ContentType.
 type CreateTokenJSONRequestBody = TokenRequest
@@ -1094,6 +1700,9 @@ type ServerInterface interface {
 	// GetCurveAudit Audit trail of a curve
 	// (GET /v1/curves/{id}/audit)
 	GetCurveAudit(ctx echo.Context, id CurveID) error
+	// CreateExclusion Exclude standards and refit, as a new revision
+	// (POST /v1/curves/{id}/exclusions)
+	CreateExclusion(ctx echo.Context, id CurveID) error
 	// GetCurvePlotPNG Plot of a curve, PNG
 	// (GET /v1/curves/{id}/plot.png)
 	GetCurvePlotPNG(ctx echo.Context, id CurveID) error
@@ -1106,6 +1715,18 @@ type ServerInterface interface {
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
 	ReviewCurve(ctx echo.Context, id CurveID) error
+	// ListVerifications Verification standards of a curve
+	// (GET /v1/curves/{id}/verifications)
+	ListVerifications(ctx echo.Context, id CurveID) error
+	// CreateVerification Record a verification standard (ICV/CCV)
+	// (POST /v1/curves/{id}/verifications)
+	CreateVerification(ctx echo.Context, id CurveID) error
+	// GetCurveInForce The curve in force at a moment
+	// (GET /v1/instruments/{instrument}/curves/current)
+	GetCurveInForce(ctx echo.Context, instrument Instrument, params GetCurveInForceParams) error
+	// CreateInstrumentPredictions Quantify against the curve in force
+	// (POST /v1/instruments/{instrument}/predictions)
+	CreateInstrumentPredictions(ctx echo.Context, instrument Instrument) error
 	// ListMethods All methods, latest revisions
 	// (GET /v1/methods)
 	ListMethods(ctx echo.Context) error
@@ -1115,18 +1736,36 @@ type ServerInterface interface {
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx echo.Context, name Identifier, params GetMethodParams) error
+	// ListResultEvents Change feed of sample results
+	// (GET /v1/results)
+	ListResultEvents(ctx echo.Context, params ListResultEventsParams) error
 	// CreateRun Post a run and fit its curves
 	// (POST /v1/runs)
 	CreateRun(ctx echo.Context, params CreateRunParams) error
 	// GetRun A run as stored
 	// (GET /v1/runs/{id})
 	GetRun(ctx echo.Context, id RunID) error
+	// GetRunResults Sample results of a run
+	// (GET /v1/runs/{id}/results)
+	GetRunResults(ctx echo.Context, id RunID) error
+	// CreateRunSamples Add samples to a run and quantify them
+	// (POST /v1/runs/{id}/samples)
+	CreateRunSamples(ctx echo.Context, id RunID) error
+	// GetSampleResults Every result for a LIMS sample id
+	// (GET /v1/samples/{sample_id})
+	GetSampleResults(ctx echo.Context, sampleID Identifier) error
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx echo.Context) error
 	// DeleteToken Revoke a token
 	// (DELETE /v1/tokens/{id})
 	DeleteToken(ctx echo.Context, id UUID) error
+	// GetTrend Drift of one curve parameter over time, with control limits and Westgard rules
+	// (GET /v1/trends)
+	GetTrend(ctx echo.Context, params GetTrendParams) error
+	// GetTrendPlotSVG Control chart of a trend, SVG
+	// (GET /v1/trends/plot.svg)
+	GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSVGParams) error
 }
 
 // ServerInterfaceWrapper converts echo contexts to parameters.
@@ -1276,6 +1915,22 @@ func (w *ServerInterfaceWrapper) GetCurveAudit(ctx echo.Context) error {
 	return err
 }
 
+// CreateExclusion converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateExclusion(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateExclusion(ctx, id)
+	return err
+}
+
 // GetCurvePlotPNG converts echo context to params.
 func (w *ServerInterfaceWrapper) GetCurvePlotPNG(ctx echo.Context) error {
 	var err error
@@ -1340,6 +1995,86 @@ func (w *ServerInterfaceWrapper) ReviewCurve(ctx echo.Context) error {
 	return err
 }
 
+// ListVerifications converts echo context to params.
+func (w *ServerInterfaceWrapper) ListVerifications(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListVerifications(ctx, id)
+	return err
+}
+
+// CreateVerification converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateVerification(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateVerification(ctx, id)
+	return err
+}
+
+// GetCurveInForce converts echo context to params.
+func (w *ServerInterfaceWrapper) GetCurveInForce(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "instrument" -------------
+	var instrument Instrument
+
+	err = runtime.BindStyledParameterWithOptions("simple", "instrument", ctx.Param("instrument"), &instrument, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params GetCurveInForceParams
+	// ------------- Required query parameter "analyte" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "analyte", ctx.QueryParams(), &params.Analyte, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter analyte: %s", err))
+	}
+
+	// ------------- Optional query parameter "at" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "at", ctx.QueryParams(), &params.At, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter at: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetCurveInForce(ctx, instrument, params)
+	return err
+}
+
+// CreateInstrumentPredictions converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateInstrumentPredictions(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "instrument" -------------
+	var instrument Instrument
+
+	err = runtime.BindStyledParameterWithOptions("simple", "instrument", ctx.Param("instrument"), &instrument, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateInstrumentPredictions(ctx, instrument)
+	return err
+}
+
 // ListMethods converts echo context to params.
 func (w *ServerInterfaceWrapper) ListMethods(ctx echo.Context) error {
 	var err error
@@ -1380,6 +2115,31 @@ func (w *ServerInterfaceWrapper) GetMethod(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.GetMethod(ctx, name, params)
+	return err
+}
+
+// ListResultEvents converts echo context to params.
+func (w *ServerInterfaceWrapper) ListResultEvents(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params ListResultEventsParams
+	// ------------- Optional query parameter "since" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "since", ctx.QueryParams(), &params.Since, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter since: %s", err))
+	}
+
+	// ------------- Optional query parameter "limit" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "limit", ctx.QueryParams(), &params.Limit, runtime.BindQueryParameterOptions{Type: "integer", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter limit: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListResultEvents(ctx, params)
 	return err
 }
 
@@ -1455,6 +2215,54 @@ func (w *ServerInterfaceWrapper) GetRun(ctx echo.Context) error {
 	return err
 }
 
+// GetRunResults converts echo context to params.
+func (w *ServerInterfaceWrapper) GetRunResults(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id RunID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetRunResults(ctx, id)
+	return err
+}
+
+// CreateRunSamples converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateRunSamples(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id RunID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateRunSamples(ctx, id)
+	return err
+}
+
+// GetSampleResults converts echo context to params.
+func (w *ServerInterfaceWrapper) GetSampleResults(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "sample_id" -------------
+	var sampleID Identifier
+
+	err = runtime.BindStyledParameterWithOptions("simple", "sample_id", ctx.Param("sample_id"), &sampleID, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter sample_id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetSampleResults(ctx, sampleID)
+	return err
+}
+
 // CreateToken converts echo context to params.
 func (w *ServerInterfaceWrapper) CreateToken(ctx echo.Context) error {
 	var err error
@@ -1477,6 +2285,112 @@ func (w *ServerInterfaceWrapper) DeleteToken(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.DeleteToken(ctx, id)
+	return err
+}
+
+// GetTrend converts echo context to params.
+func (w *ServerInterfaceWrapper) GetTrend(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params GetTrendParams
+	// ------------- Required query parameter "instrument" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "instrument", ctx.QueryParams(), &params.Instrument, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// ------------- Required query parameter "analyte" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "analyte", ctx.QueryParams(), &params.Analyte, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter analyte: %s", err))
+	}
+
+	// ------------- Optional query parameter "parameter" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "parameter", ctx.QueryParams(), &params.Parameter, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter parameter: %s", err))
+	}
+
+	// ------------- Optional query parameter "from" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "from", ctx.QueryParams(), &params.From, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter from: %s", err))
+	}
+
+	// ------------- Optional query parameter "to" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "to", ctx.QueryParams(), &params.To, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter to: %s", err))
+	}
+
+	// ------------- Optional query parameter "baseline" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "baseline", ctx.QueryParams(), &params.Baseline, runtime.BindQueryParameterOptions{Type: "integer", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter baseline: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetTrend(ctx, params)
+	return err
+}
+
+// GetTrendPlotSVG converts echo context to params.
+func (w *ServerInterfaceWrapper) GetTrendPlotSVG(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params GetTrendPlotSVGParams
+	// ------------- Required query parameter "instrument" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "instrument", ctx.QueryParams(), &params.Instrument, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// ------------- Required query parameter "analyte" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "analyte", ctx.QueryParams(), &params.Analyte, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter analyte: %s", err))
+	}
+
+	// ------------- Optional query parameter "parameter" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "parameter", ctx.QueryParams(), &params.Parameter, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter parameter: %s", err))
+	}
+
+	// ------------- Optional query parameter "from" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "from", ctx.QueryParams(), &params.From, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter from: %s", err))
+	}
+
+	// ------------- Optional query parameter "to" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "to", ctx.QueryParams(), &params.To, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter to: %s", err))
+	}
+
+	// ------------- Optional query parameter "baseline" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "baseline", ctx.QueryParams(), &params.Baseline, runtime.BindQueryParameterOptions{Type: "integer", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter baseline: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetTrendPlotSVG(ctx, params)
 	return err
 }
 
@@ -1540,6 +2454,17 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/curves/:id/audit", wrapper.GetCurveAudit, options.OperationMiddlewares["getCurveAudit"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id/plot.svg", wrapper.GetCurvePlotSVG, options.OperationMiddlewares["getCurvePlotSVG"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id/plot.png", wrapper.GetCurvePlotPNG, options.OperationMiddlewares["getCurvePlotPNG"]...)
+	router.GET(options.BaseURL+"/v1/trends", wrapper.GetTrend, options.OperationMiddlewares["getTrend"]...)
+	router.GET(options.BaseURL+"/v1/trends/plot.svg", wrapper.GetTrendPlotSVG, options.OperationMiddlewares["getTrendPlotSVG"]...)
+	router.POST(options.BaseURL+"/v1/runs/:id/samples", wrapper.CreateRunSamples, options.OperationMiddlewares["createRunSamples"]...)
+	router.GET(options.BaseURL+"/v1/runs/:id/results", wrapper.GetRunResults, options.OperationMiddlewares["getRunResults"]...)
+	router.GET(options.BaseURL+"/v1/samples/:sample_id", wrapper.GetSampleResults, options.OperationMiddlewares["getSampleResults"]...)
+	router.GET(options.BaseURL+"/v1/results", wrapper.ListResultEvents, options.OperationMiddlewares["listResultEvents"]...)
+	router.GET(options.BaseURL+"/v1/curves/:id/verifications", wrapper.ListVerifications, options.OperationMiddlewares["listVerifications"]...)
+	router.POST(options.BaseURL+"/v1/curves/:id/verifications", wrapper.CreateVerification, options.OperationMiddlewares["createVerification"]...)
+	router.POST(options.BaseURL+"/v1/curves/:id/exclusions", wrapper.CreateExclusion, options.OperationMiddlewares["createExclusion"]...)
+	router.GET(options.BaseURL+"/v1/instruments/:instrument/curves/current", wrapper.GetCurveInForce, options.OperationMiddlewares["getCurveInForce"]...)
+	router.POST(options.BaseURL+"/v1/instruments/:instrument/predictions", wrapper.CreateInstrumentPredictions, options.OperationMiddlewares["createInstrumentPredictions"]...)
 	router.GET(options.BaseURL+"/v1/methods", wrapper.ListMethods, options.OperationMiddlewares["listMethods"]...)
 	router.POST(options.BaseURL+"/v1/methods", wrapper.CreateMethod, options.OperationMiddlewares["createMethod"]...)
 	router.GET(options.BaseURL+"/v1/methods/:name", wrapper.GetMethod, options.OperationMiddlewares["getMethod"]...)
@@ -2142,6 +3067,216 @@ type GetCurveAudit503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response GetCurveAudit503ApplicationProblemPlusJSONResponse) VisitGetCurveAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusionRequestObject struct {
+	ID   CurveID `json:"id"`
+	Body *CreateExclusionJSONRequestBody
+}
+
+type CreateExclusionResponseObject interface {
+	VisitCreateExclusionResponse(w http.ResponseWriter) error
+}
+
+type CreateExclusion201ResponseHeaders struct {
+	Location string
+}
+
+type CreateExclusion201JSONResponse struct {
+	Body    Curve
+	Headers CreateExclusion201ResponseHeaders
+}
+
+func (response CreateExclusion201JSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.Header().Set("Location", fmt.Sprint(response.Headers.Location))
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion400ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion401ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion403ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion404ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion409ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion413ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion415ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion422ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion429ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion500ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateExclusion503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateExclusion503ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -2844,6 +3979,685 @@ func (response ReviewCurve503ApplicationProblemPlusJSONResponse) VisitReviewCurv
 	return err
 }
 
+type ListVerificationsRequestObject struct {
+	ID CurveID `json:"id"`
+}
+
+type ListVerificationsResponseObject interface {
+	VisitListVerificationsResponse(w http.ResponseWriter) error
+}
+
+type ListVerifications200JSONResponse VerificationList
+
+func (response ListVerifications200JSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications400ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications401ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications403ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications404ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications429ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications500ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListVerifications503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListVerifications503ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerificationRequestObject struct {
+	ID   CurveID `json:"id"`
+	Body *CreateVerificationJSONRequestBody
+}
+
+type CreateVerificationResponseObject interface {
+	VisitCreateVerificationResponse(w http.ResponseWriter) error
+}
+
+type CreateVerification201JSONResponse VerificationCreated
+
+func (response CreateVerification201JSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification400ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification401ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification403ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification404ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification409ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification413ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification415ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification422ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification429ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification500ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateVerification503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateVerification503ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForceRequestObject struct {
+	Instrument Instrument `json:"instrument"`
+	Params     GetCurveInForceParams
+}
+
+type GetCurveInForceResponseObject interface {
+	VisitGetCurveInForceResponse(w http.ResponseWriter) error
+}
+
+type GetCurveInForce200JSONResponse CurveInForce
+
+func (response GetCurveInForce200JSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce400ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce401ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce403ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce404ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce429ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce500ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveInForce503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveInForce503ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionsRequestObject struct {
+	Instrument Instrument `json:"instrument"`
+	Body       *CreateInstrumentPredictionsJSONRequestBody
+}
+
+type CreateInstrumentPredictionsResponseObject interface {
+	VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error
+}
+
+type CreateInstrumentPredictions200JSONResponse PredictionResponse
+
+func (response CreateInstrumentPredictions200JSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions400ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions401ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions403ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions404ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions409ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions413ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions415ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions422ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions429ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions500ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictions503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictions503ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type ListMethodsRequestObject struct {
 }
 
@@ -3309,6 +5123,127 @@ func (response GetMethod503ApplicationProblemPlusJSONResponse) VisitGetMethodRes
 	return err
 }
 
+type ListResultEventsRequestObject struct {
+	Params ListResultEventsParams
+}
+
+type ListResultEventsResponseObject interface {
+	VisitListResultEventsResponse(w http.ResponseWriter) error
+}
+
+type ListResultEvents200JSONResponse ResultFeed
+
+func (response ListResultEvents200JSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents400ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents401ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents403ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents429ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents500ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListResultEvents503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListResultEvents503ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type CreateRunRequestObject struct {
 	Params   CreateRunParams
 	JSONBody *CreateRunJSONRequestBody
@@ -3643,6 +5578,482 @@ func (response GetRun503ApplicationProblemPlusJSONResponse) VisitGetRunResponse(
 	return err
 }
 
+type GetRunResultsRequestObject struct {
+	ID RunID `json:"id"`
+}
+
+type GetRunResultsResponseObject interface {
+	VisitGetRunResultsResponse(w http.ResponseWriter) error
+}
+
+type GetRunResults200JSONResponse RunResults
+
+func (response GetRunResults200JSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults400ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults401ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults403ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults404ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults429ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults500ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetRunResults503ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamplesRequestObject struct {
+	ID   RunID `json:"id"`
+	Body *CreateRunSamplesJSONRequestBody
+}
+
+type CreateRunSamplesResponseObject interface {
+	VisitCreateRunSamplesResponse(w http.ResponseWriter) error
+}
+
+type CreateRunSamples201JSONResponse RunResults
+
+func (response CreateRunSamples201JSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples400ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples401ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples403ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples404ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples409ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples413ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples415ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples422ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples429ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples500ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunSamples503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunSamples503ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResultsRequestObject struct {
+	SampleID Identifier `json:"sample_id"`
+}
+
+type GetSampleResultsResponseObject interface {
+	VisitGetSampleResultsResponse(w http.ResponseWriter) error
+}
+
+type GetSampleResults200JSONResponse SampleResults
+
+func (response GetSampleResults200JSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults400ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults401ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults403ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults404ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults429ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults500ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetSampleResults503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type CreateTokenRequestObject struct {
 	Body *CreateTokenJSONRequestBody
 }
@@ -3943,6 +6354,254 @@ func (response DeleteToken503ApplicationProblemPlusJSONResponse) VisitDeleteToke
 	return err
 }
 
+type GetTrendRequestObject struct {
+	Params GetTrendParams
+}
+
+type GetTrendResponseObject interface {
+	VisitGetTrendResponse(w http.ResponseWriter) error
+}
+
+type GetTrend200JSONResponse Trend
+
+func (response GetTrend200JSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend400ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend401ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend403ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend429ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend500ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrend503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrend503ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVGRequestObject struct {
+	Params GetTrendPlotSVGParams
+}
+
+type GetTrendPlotSVGResponseObject interface {
+	VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error
+}
+
+type GetTrendPlotSVG200ImageSvgXMLResponse struct {
+	Body          io.Reader
+	ContentLength int64
+}
+
+func (response GetTrendPlotSVG200ImageSvgXMLResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	w.Header().Set("Content-Type", "image/svg+xml")
+	if response.ContentLength != 0 {
+		w.Header().Set("Content-Length", fmt.Sprint(response.ContentLength))
+	}
+	w.WriteHeader(200)
+
+	if closer, ok := response.Body.(io.ReadCloser); ok {
+		defer closer.Close()
+	}
+	_, err := io.Copy(w, response.Body)
+	return err
+}
+
+type GetTrendPlotSVG400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG400ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG401ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG403ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG429ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG500ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetTrendPlotSVG503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetTrendPlotSVG503ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 // StrictServerInterface represents all server handlers.
 type StrictServerInterface interface {
 	// GetHealthz Liveness
@@ -3966,6 +6625,9 @@ type StrictServerInterface interface {
 	// GetCurveAudit Audit trail of a curve
 	// (GET /v1/curves/{id}/audit)
 	GetCurveAudit(ctx context.Context, request GetCurveAuditRequestObject) (GetCurveAuditResponseObject, error)
+	// CreateExclusion Exclude standards and refit, as a new revision
+	// (POST /v1/curves/{id}/exclusions)
+	CreateExclusion(ctx context.Context, request CreateExclusionRequestObject) (CreateExclusionResponseObject, error)
 	// GetCurvePlotPNG Plot of a curve, PNG
 	// (GET /v1/curves/{id}/plot.png)
 	GetCurvePlotPNG(ctx context.Context, request GetCurvePlotPNGRequestObject) (GetCurvePlotPNGResponseObject, error)
@@ -3978,6 +6640,18 @@ type StrictServerInterface interface {
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
 	ReviewCurve(ctx context.Context, request ReviewCurveRequestObject) (ReviewCurveResponseObject, error)
+	// ListVerifications Verification standards of a curve
+	// (GET /v1/curves/{id}/verifications)
+	ListVerifications(ctx context.Context, request ListVerificationsRequestObject) (ListVerificationsResponseObject, error)
+	// CreateVerification Record a verification standard (ICV/CCV)
+	// (POST /v1/curves/{id}/verifications)
+	CreateVerification(ctx context.Context, request CreateVerificationRequestObject) (CreateVerificationResponseObject, error)
+	// GetCurveInForce The curve in force at a moment
+	// (GET /v1/instruments/{instrument}/curves/current)
+	GetCurveInForce(ctx context.Context, request GetCurveInForceRequestObject) (GetCurveInForceResponseObject, error)
+	// CreateInstrumentPredictions Quantify against the curve in force
+	// (POST /v1/instruments/{instrument}/predictions)
+	CreateInstrumentPredictions(ctx context.Context, request CreateInstrumentPredictionsRequestObject) (CreateInstrumentPredictionsResponseObject, error)
 	// ListMethods All methods, latest revisions
 	// (GET /v1/methods)
 	ListMethods(ctx context.Context, request ListMethodsRequestObject) (ListMethodsResponseObject, error)
@@ -3987,18 +6661,36 @@ type StrictServerInterface interface {
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx context.Context, request GetMethodRequestObject) (GetMethodResponseObject, error)
+	// ListResultEvents Change feed of sample results
+	// (GET /v1/results)
+	ListResultEvents(ctx context.Context, request ListResultEventsRequestObject) (ListResultEventsResponseObject, error)
 	// CreateRun Post a run and fit its curves
 	// (POST /v1/runs)
 	CreateRun(ctx context.Context, request CreateRunRequestObject) (CreateRunResponseObject, error)
 	// GetRun A run as stored
 	// (GET /v1/runs/{id})
 	GetRun(ctx context.Context, request GetRunRequestObject) (GetRunResponseObject, error)
+	// GetRunResults Sample results of a run
+	// (GET /v1/runs/{id}/results)
+	GetRunResults(ctx context.Context, request GetRunResultsRequestObject) (GetRunResultsResponseObject, error)
+	// CreateRunSamples Add samples to a run and quantify them
+	// (POST /v1/runs/{id}/samples)
+	CreateRunSamples(ctx context.Context, request CreateRunSamplesRequestObject) (CreateRunSamplesResponseObject, error)
+	// GetSampleResults Every result for a LIMS sample id
+	// (GET /v1/samples/{sample_id})
+	GetSampleResults(ctx context.Context, request GetSampleResultsRequestObject) (GetSampleResultsResponseObject, error)
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx context.Context, request CreateTokenRequestObject) (CreateTokenResponseObject, error)
 	// DeleteToken Revoke a token
 	// (DELETE /v1/tokens/{id})
 	DeleteToken(ctx context.Context, request DeleteTokenRequestObject) (DeleteTokenResponseObject, error)
+	// GetTrend Drift of one curve parameter over time, with control limits and Westgard rules
+	// (GET /v1/trends)
+	GetTrend(ctx context.Context, request GetTrendRequestObject) (GetTrendResponseObject, error)
+	// GetTrendPlotSVG Control chart of a trend, SVG
+	// (GET /v1/trends/plot.svg)
+	GetTrendPlotSVG(ctx context.Context, request GetTrendPlotSVGRequestObject) (GetTrendPlotSVGResponseObject, error)
 }
 
 type StrictHandlerFunc func(ctx echo.Context, request any) (any, error)
@@ -4180,6 +6872,54 @@ func (sh *strictHandler) GetCurveAudit(ctx echo.Context, id CurveID) error {
 	return nil
 }
 
+// CreateExclusion operation middleware
+func (sh *strictHandler) CreateExclusion(ctx echo.Context, id CurveID) error {
+	var request CreateExclusionRequestObject
+
+	request.ID = id
+
+	var body CreateExclusionJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateExclusion(ctx.Request().Context(), request.(CreateExclusionRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateExclusion")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateExclusionResponseObject); ok {
+		return validResponse.VisitCreateExclusionResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // GetCurvePlotPNG operation middleware
 func (sh *strictHandler) GetCurvePlotPNG(ctx echo.Context, id CurveID) error {
 	var request GetCurvePlotPNGRequestObject
@@ -4326,6 +7066,153 @@ func (sh *strictHandler) ReviewCurve(ctx echo.Context, id CurveID) error {
 	return nil
 }
 
+// ListVerifications operation middleware
+func (sh *strictHandler) ListVerifications(ctx echo.Context, id CurveID) error {
+	var request ListVerificationsRequestObject
+
+	request.ID = id
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListVerifications(ctx.Request().Context(), request.(ListVerificationsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListVerifications")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListVerificationsResponseObject); ok {
+		return validResponse.VisitListVerificationsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateVerification operation middleware
+func (sh *strictHandler) CreateVerification(ctx echo.Context, id CurveID) error {
+	var request CreateVerificationRequestObject
+
+	request.ID = id
+
+	var body CreateVerificationJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateVerification(ctx.Request().Context(), request.(CreateVerificationRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateVerification")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateVerificationResponseObject); ok {
+		return validResponse.VisitCreateVerificationResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetCurveInForce operation middleware
+func (sh *strictHandler) GetCurveInForce(ctx echo.Context, instrument Instrument, params GetCurveInForceParams) error {
+	var request GetCurveInForceRequestObject
+
+	request.Instrument = instrument
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetCurveInForce(ctx.Request().Context(), request.(GetCurveInForceRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetCurveInForce")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetCurveInForceResponseObject); ok {
+		return validResponse.VisitGetCurveInForceResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateInstrumentPredictions operation middleware
+func (sh *strictHandler) CreateInstrumentPredictions(ctx echo.Context, instrument Instrument) error {
+	var request CreateInstrumentPredictionsRequestObject
+
+	request.Instrument = instrument
+
+	var body CreateInstrumentPredictionsJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateInstrumentPredictions(ctx.Request().Context(), request.(CreateInstrumentPredictionsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateInstrumentPredictions")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateInstrumentPredictionsResponseObject); ok {
+		return validResponse.VisitCreateInstrumentPredictionsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // ListMethods operation middleware
 func (sh *strictHandler) ListMethods(ctx echo.Context) error {
 	var request ListMethodsRequestObject
@@ -4421,6 +7308,31 @@ func (sh *strictHandler) GetMethod(ctx echo.Context, name Identifier, params Get
 	return nil
 }
 
+// ListResultEvents operation middleware
+func (sh *strictHandler) ListResultEvents(ctx echo.Context, params ListResultEventsParams) error {
+	var request ListResultEventsRequestObject
+
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListResultEvents(ctx.Request().Context(), request.(ListResultEventsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListResultEvents")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListResultEventsResponseObject); ok {
+		return validResponse.VisitListResultEventsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // CreateRun operation middleware
 func (sh *strictHandler) CreateRun(ctx echo.Context, params CreateRunParams) error {
 	var request CreateRunRequestObject
@@ -4499,6 +7411,104 @@ func (sh *strictHandler) GetRun(ctx echo.Context, id RunID) error {
 	return nil
 }
 
+// GetRunResults operation middleware
+func (sh *strictHandler) GetRunResults(ctx echo.Context, id RunID) error {
+	var request GetRunResultsRequestObject
+
+	request.ID = id
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetRunResults(ctx.Request().Context(), request.(GetRunResultsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetRunResults")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetRunResultsResponseObject); ok {
+		return validResponse.VisitGetRunResultsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateRunSamples operation middleware
+func (sh *strictHandler) CreateRunSamples(ctx echo.Context, id RunID) error {
+	var request CreateRunSamplesRequestObject
+
+	request.ID = id
+
+	var body CreateRunSamplesJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateRunSamples(ctx.Request().Context(), request.(CreateRunSamplesRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateRunSamples")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateRunSamplesResponseObject); ok {
+		return validResponse.VisitCreateRunSamplesResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetSampleResults operation middleware
+func (sh *strictHandler) GetSampleResults(ctx echo.Context, sampleID Identifier) error {
+	var request GetSampleResultsRequestObject
+
+	request.SampleID = sampleID
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetSampleResults(ctx.Request().Context(), request.(GetSampleResultsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetSampleResults")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetSampleResultsResponseObject); ok {
+		return validResponse.VisitGetSampleResultsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // CreateToken operation middleware
 func (sh *strictHandler) CreateToken(ctx echo.Context) error {
 	var request CreateTokenRequestObject
@@ -4570,230 +7580,394 @@ func (sh *strictHandler) DeleteToken(ctx echo.Context, id UUID) error {
 	return nil
 }
 
+// GetTrend operation middleware
+func (sh *strictHandler) GetTrend(ctx echo.Context, params GetTrendParams) error {
+	var request GetTrendRequestObject
+
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetTrend(ctx.Request().Context(), request.(GetTrendRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetTrend")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetTrendResponseObject); ok {
+		return validResponse.VisitGetTrendResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetTrendPlotSVG operation middleware
+func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSVGParams) error {
+	var request GetTrendPlotSVGRequestObject
+
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetTrendPlotSVG(ctx.Request().Context(), request.(GetTrendPlotSVGRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetTrendPlotSVG")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetTrendPlotSVGResponseObject); ok {
+		return validResponse.VisitGetTrendPlotSVGResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // Base64 encoded, compressed with deflate, json marshaled OpenAPI spec.
 // Stored as a slice of fixed-width chunks rather than one concatenated
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7H3bciNHltivpDHrENlTBEE2W6MmYyKWQ6lX3Onbkt3SrIUeVqIqAeSwkAllZpHEqNthh1+8r37xB6z9",
-	"AxvhmHD4TX5ff4PnSxznnMyqLKAAAmyyR+OQItTdAKrycjLP/fZDJ9OTqVZCOds5/KEzFjwXBv95JpyZ",
-	"HQ+dMPApFzYzcuqkVp3DzrnItMotc5pdc+nYQAy1EczAK1KNup2kY8T3pTQi7xw6U4qkY7OxmHAYaiKV",
-	"nJSTzmEv6bjZVHQOO1I5MRKm8+HDh6Qz5YZPhPPLOCnNlTj9cnENb8aCZfDjZ5bJHKaU8PWUu3En6Sg+",
-	"wYHzlUv5GyOGncPOL3ZrKOzSr3b37dvTLzuwntNcTKbaCZXNfitmiws5ZlkhhXI72VhbodilmLEtzuB9",
-	"Ji3jbKR1zrKxlpnYZm7MHZvwSwG/AMCkyPsKliisY5YPxRGzQjA3FkxPheEwy2eWRXN2+yrsls6r3m+0",
-	"1h1YbAPu/Oa5UCM37hzu7X+RwDlUnwHqzgkDY/7+u+Odf8d3/tjbedq9ONx598Nesrf/xYe/6VTHZZ2R",
-	"aoTAOSvVssMxpXrYo/kA79upVlbgVfkNz88IjvAp08oJhf/k02khM4Tk7tToQSEmv/yDhYX+sOaMr+kt",
-	"mrS51Re8GGozETmzM+X4TcKujVYjBrBi2jDOrnhRCqZLZ2VOB0vDHrJJeLev/v781cuEcUawZddjYQTj",
-	"TJWTgTBsIAqtRjZhXLFSXSp9rdhQiiKHV/zRMW36ynA1EuxK6oI7gb9+XwozYxVS0QXMtbBMaccANDO4",
-	"UB+SzolWw0JmnxR6eFGE1aXJAJGt406woTYDCeQFfyTM2OKE7cyIKymuRc54YQTPZwnjfUU/XUs31qVj",
-	"nA2lSxC/6GX4gQDPJ4LJGkkQWa2TRcGk6sP2R2O37eHxDJeRC/WpAeL0pVCs4NmlZeIKjs9meipYIa0T",
-	"OZOKpTc7AXV28DebdmHJpwpuAi++MkabT7nsMDETMHOXwTYGOp8xy2eWaVXMWB/JfP1Qv8O4yhuHDMTi",
-	"Q9J5qd0zXar8U8MdKFNeXccaScSNtA5X9prPCs3zN1o/52YkPvUCEaLiJhPCY4cV5kqYzyzLtBrKUWlE",
-	"zgo5kbTac2GuZCbeKn7FZcEHxSdfcM4dH3ArWMYVQHIAZ82zsciZ0tcJ0MewDZkJYJd2XDoHFDDX1wpY",
-	"x7xIslPJJG3r8k/vRtILLu2N1i+4mnn+YP8iGP2ZrS66ATInLdNXwjDpbDi0+9ruW8VLN9ZG/lF8Uix6",
-	"Ia2VapTUnC2p+JU2QLv1pcjZQHADrAigMrfpb7/9due4dGOhHKxSLMoW6W/w7ZSoOlcsRXKSMu6ckYPS",
-	"CbZ19uyEff6rJ73t1aLovDxDoJsanQlrAV++Uk662aeE4LeiKHa8QCHVtHTEsAdG8EsUGctCMD2M0ebI",
-	"Q8CmSMEsAwzrKz0cCpUDKqGkUBPbshCew71VtpxOtXEifyFyyd8gPD4190eU+MyyE5p1B1YByAEEQ6s5",
-	"UZjxLBNTZ7sofvo5YAnH+D1XmTgFsOHa81zCO7x4bWAAJ0FQHPLCivmV1G8zNzbCjnWR2yOEJK6hEEMH",
-	"IhxzKLrDkoQaSSVQNB/ysnBsy45JLisK4tJa4YMT4cY6x6s4jdbxQ2fAs8uLjBfZRaGvL5wuhIEVXExJ",
-	"BhM3WVFaeSVeBI2J7i/cDu46h51cl0DTExDt6YG9Xi9pU7BIjIQjr+ecSHUx5dZeDA3PCAw/rBx77ZE/",
-	"zU7GeqJtJnJuncykm13wYjq+9TYe40MfEhJG4NA3fA/Esgs9vBjKTd+ccJVzp02LDnkyFiDsXYMGyYZc",
-	"FqWhv+mqXQmTy8wdESq4sTCWcdAP8itptZmhiuXExN62FpznJShguJ6bU3ppr4YvN4aD3lgq+X0p/O9w",
-	"Wn4Doth41zcXxj7sVYCrXIgrUViv6NKjT+L39hetDfSiubDfl9wQo/yI+69LV0hhLjKtL+1F/mCbDfNY",
-	"V+bAJT2Lf5C5TKnsRuf9oRpED/4gMgeD1LT1tS5kNtuQNH+FGlBFlYGwDrXJRBIIr61J7sY0dhE6H08x",
-	"N6GMa7y9nM6t8XILlVvjrVYat8Z7DQq3OUFqkKAWerPWChrUZp03GrTjTiRiHVKwwVtziL3Gm000vfWF",
-	"D7FM/F0MgTmYt92EpRdy+T1PVmLhagybP4DmES9e8AYw2mG6eD7xzX3XRsECaOctv1aOlBzKDAVHhCFQ",
-	"oBUkt9d9EpPcbq/X22s50GPFixkpPyspZZPWkWV1NcKdIhiGkuYplXS3Wlvhmfk7g1P591shVubSfXUV",
-	"lIj191AT1jm9CLSga25ZrpVImOiOuiw1pepmRnAn8jRhKVoBu0PpGp/5dGr0VfyNEbBMkafdRZt2AivQ",
-	"LT4PIFJB8SIDHSpmHAZqH2eOAnEndpyciLZnc+G4LNrt6FNunMzKghubMKmyokSljgdLqEG7ArdadVtN",
-	"9PGxcUAZ2mDSqTDMz770HJ/r0YanKK6CR2ktLhDdlgU2MLcDP3LbWk94CcuzSy4PGRotaGrSojZMOuah",
-	"VykRh/mIS2VdbE/zUkZfZUY6YSRnQ6MnbFoOCmnHImejUubwMonnBR9og6TkMwsjG5FLh6pr0ldGjMoC",
-	"fsT5STFk569eo1rJpkZkIhc4FB0uG8zQhM8LQNmcTYWxWvVV5XArBLfCO4QCpBdu10SqIOgvMlnkwBse",
-	"Lxxh6Yg9NSH9DB5n12NBqm8Gg7NMl0XOvP0vvIvQUiwFci/yFA4D50LIpHQlUzIfX49n0dUeaF0Irppo",
-	"s7BnNKi1I1QkSuJVgBUBb0GD0hFTZVHM72DM4aoodOhcczJNhI20U3wYhSyuJIavlpXmr6sAHS8yHniP",
-	"oRvDcnFFuciCN6nSDlEzvJZW+I3F6uEi8NbhFg3xjE4qgnY0GJnMW7diRGV2Iqxztckk0xOB6NRKQS3g",
-	"DQgZS84RPabhGTiaieAWcRZdbvFRfvSBtfO/eoXhxlVgSmosiQ+7AtVKslvDvc3djBfAs6KIdk1Ruzpk",
-	"aS3QAc8jiS5N+iqNpDn4ZV6Qg+8qWQzolNQKvqukLxzECPjlSlxYB7sy+QXZXxOWVsIYviWszEteXIBA",
-	"Bl94qcumRK+EAhGoVfxsCp4tImcsNPqFguQXSYlLVhlLjPhUtMZaMIz5i7+OSedmB1a8c8UNWllh6XhM",
-	"L6R6HpZPX4Q94KfnPLt8NXyG28Avvl7cC37/G55dnjT2g1+fnVd7os9+Y+d+X1/5beGPp9He/NO0wTPa",
-	"H373qtokOX0zoRwZV9tum9ITqXgBHLF+EAQRun4kqH5mGYiCtwi/e73ov1ssDyfAgJEXtiD/td6xMhc5",
-	"sWl8iqRvwAo83yte2IT1uk+Y06zXffr06a2C+dOnTxui+ZO2VZXGtgmHr6b8+1KwSzGzwrEMn2JbA27F",
-	"5welKSrP9BSYrBqhLTiKx3iyt79WPMbFzrtf/k0bpcQomU1N3owkZfKrd9m3geUZwWGRtsm3/cMg8hYF",
-	"0IFMi+FQZhIYBqB3E9FsSow801fcSKBPKZosxWTqZgnM01cEV0uCtBIwOkyDzwE5TljqeRuKB+kQRILE",
-	"j4sWUxQQ+goEBKQp87oEEewL7lo5k99uqZCnh6ebF2WV1M5rLW3htywSRldy2PAcvIN72sx20mY3iU9m",
-	"ceOnik10Lood8X1JLhVtcmEOWSGV4IZ9N+glbLD3LvFfXGgjR1Kx7/C770ueAw3IwnMJG+y/axig1zPT",
-	"eIn0cdvyl6P+SQvCwyEO4FLA/3pYCRcVIWhH/YVF1Ve1bd7wG5twZ+RNmDiGdcLsj/+y9bv/+z/+w7e/",
-	"2/7zf/xfP/7PhBl9bYFYRs8RvBsguzfYrQYsqcqr0cGH0nBbYbzKmXV6I8zIh4szBFbEcjEyQliA4NAI",
-	"ketJwhT783/+L2waiYGRCY48bRdXwthWJoWhgLyQA+8ipOeJrAQhDPeGYUFkOsDnd/e6vW6v3Qwg8/XC",
-	"0ECgsM6UE2/rWNREKuNic9VfguCoMkcX2QaOOiQ2uipK0suatxKI5/QUXAvUItqVQ/zpAvTN5dD1Wkh4",
-	"qP2iAJNrLH2v1eUCtOe2lb/Ah0BJabtHnj3VAGNb6P0AiUArEdSzUjlBbtfVwJxq2UooyfEQ2Fpgi0nY",
-	"rjYszJqwkdHlVOSgrxNdkooYipU1iV3fTQegfQ3LaiPvDWv0fPSAHI2Rp8fkBkiiEwbkOFzMVkminMjZ",
-	"UJsmmd++ozqLgYe37esMH/oQyd02X0EoKtDn4krS0u3WbPdmOwmu9X/952v2a6bYNe6b2YwX4q4bQIPL",
-	"rTugp8jmfrE+jZgTjlpCqsNe6YEl7AVtkAtX6WOZBmix5XqX8pwejUzHzW28PXn7gmU6r0yltYLQUCAq",
-	"dWGBHgU+e7EWofjGP10RDC8w3vqef+xD0qG7c5FxlUtgam32Q+nGLOWl02niIzKrxz+zzGbaiCMSbWsj",
-	"zNrYTkh7EgZsQ/mwRq2uhGrX1L7W1x4NKDYAcSH37E7BDSmkBT6omS0n8JcKcftphI7tzJAGhg8gVhfF",
-	"q2Hn8Lt1doXvv2uL+8HnBCthTVsY16AE8yH0aLIheCOD8TFCSM3j1VxUP9z7uiLbG7eXRClx8j8Koy/G",
-	"XOWFB8fiMcAjzetuKfrNB6uza2FAWZw6b0o2Oi8zqUZMqqFU0olwkuFSeRuWEowbTVdrtaGfouuJRFXs",
-	"f5HZN4SXWqHx2B2YdXz+7dBvw6K2WzsPvjldZZFONqTyJt9AKbNp9IEJKlNSpEZUPL7SsSoRKnCumnJU",
-	"9DBpKJAN8TnS7xbE01Z7HtDO59Ju6g27kxYJc22gRSJZLycTbmZtpEeJG3eRLbF7kD0k0Hp4lE35KFhe",
-	"PZMuuKWvu8v58JJr7PfSXEUE/KWwJuFpM4PIKyUWpD0KMkWTteQjpa2TmT1iPPqIbqTK0CzdXNw421Ka",
-	"FA9tmNLMaO1Q7Brw7HInMmD6B8ja1sNHghGThIJVEYQl5nu06ssR04VN4bxEdyop/o4iUzZvO1xLyUaX",
-	"u7QuKNp3mDjI3e2+CJLP7zg0ko+lepzho7uuuTJI41mGAJXmae31ej/+aWvuUFEzboB6e7fx8c4CL9HS",
-	"O++HuNma5x4FYFzEM7enkRSgd9ELllIy8IU77pT40DJtaV6XQMHpiPUIn8NVuw+nEd2tebyJQFkttbrE",
-	"0TEtgWF0MRewK1kgEK33MEKopQT1vNIR5pU19FNj4laXHTMlrr1lQFqWTikC/YKUq/SoilpAdy9Qum7k",
-	"CWo+DfzXh27gsilmY13PTL3m1zTqWRg0+um4Hj/69qyaqtq8Z4+bhrI0zM/3YFNu2O/WG2/IZSHyi9q0",
-	"vBjVUiubFIVMGYKSLP9Tbi3bqvyXmNHo3crb3ZVRB/OCxL0Z1DYzZt2nNeqWOMDbaeamNoO7q+WLevUd",
-	"FWOv5aypUn06NSSW+1tE9+a9XyHKt1G8L2VRtmvZ4Rc2xCgqzJ+VImd86IRhUnklgG0ZQXk17NeeHFIW",
-	"8P/+ryz3Q2wfsT3iMXxghUJryN2CuNdwp34teOHGGxKw+gIGCq0vkRTzfLYmHaZ5X/22E5ZwRi/PXxQ/",
-	"VdthRBGLbe5pH5bHFavvUBLMTonX4ZPgLTLM8smUjISRA/bzg7X8r+/mU+N7yeePP7R6ZE+982lDHSTy",
-	"bwX3VW0KjGU+ctemA12qPA6fSlha6GvvfB3L0Tit3Kkt6gO93S5Gw8sfK0SvE2uur+80y7xspYG345qT",
-	"StAK+2u7Vs8rF8oGx/OlcCKjNDSVs+9LjjeT0uMohxNjNFtsnRbzdqeOpZmRTma8uECKkLItXlmGtleF",
-	"LM1ZBsIo2eoAjtPzV2xv74uDxzv7LLwTKhIErd3NB3fcXGR3VQkbm7vLcgIsEja78yqWhdN+ra9hjhkZ",
-	"4AJwUfG+Hs8A4t0l0bl06hdLogrjXXkyzOglWCbtD6B611jBQreo9qcnX7N/2GfV4uj+Jexx9/GPf/o/",
-	"/2n3/M6Tfb90srYbn7C93kdMuIDHwNBhDQuXKVl26RdPaGVw3YtKftxImA9xdrcGM8+nO9VS/QYR0V4E",
-	"+nBbeMQ6Jpfb3f7S1r7da26Zf2V9h3+YYzBbO3Lev9KcfQn+RcMteGnnDOSw/JG8Eu1Dbeh99hGYC8Os",
-	"r2DcgxDtY00jaTmGQLt03DB+V7cvia/xvEG7PsHlSHMHEzYJYOvffI+dt+UBhGGXrzWqBfTAeE4J5x+J",
-	"5nE2bu+WmP0mCVjP7xUFVC46vr70IVO97tMn3RaUWzXwG3Hj7o5a6+cq3R8mtSFMdXStFypsba4SBUVO",
-	"pGzGfs0GPfZLNtj78U83RyxthFT43/1PVQBd2lfN9+Dv/R//dPPjv7AtkCi+OPj885397Wa0NI2M/qto",
-	"ik7SqcZdUzPDPT0Po0WfXoUR8bt/qIf9kHReYRmGNk/Qt2PNDCdLaq2IHaFeVh1jqH42Y7ywmmEORvq3",
-	"6Zwytm51sqY29reoju3t/6pdH3ttRC5RRLgbXWii3LqIlnRI3VyfItTrPMc3F0jDatowr1b72dsudQyR",
-	"2pS/Cam87/DXVSHfpAA3Yz9Lu8wuvygDleZKbGB7o+fvZIGjVzc3t1Fu2l1uyhm+2SYrLrEGtnlZyUS3",
-	"YHprAGJ+c3NyRtjBLQ7ahYVvjImrFN6mx5PsckCU8qblbiHPC410lOdV+2i9bErocVdlNDImrnFThwUf",
-	"tRjq04Eo9PUFBiukCUv5QF+J+qO4cYZPqeofpvHg04WmlJ3w6Xv4SYkROoDw3/oC9nohVT1UqbzZ5CJY",
-	"oNLbEgzbTf2LIbWRTWwl3w/PRe9c1Fb/Vp2+NpeBAqAHjktVhT+lQymKQpj24KaJ4OpiQ3dmyJFo0Xao",
-	"YqMeMiOodJKIIn84uery2+Nk5/KWFk2f06nRN3IC49tG8GCrwTDxqBBuY7j/0o3hxgvrcKj7UOFl3uLj",
-	"bE/DukIHJl35CKjzZxIh0eKNWE1iPBfdjMTEKLvqolZ+grXcW01xtlG6dHXIaXiw3btS/dwOCCq+tei3",
-	"fXbCnh48+RXzRb0YGUzsoqVxmTGNMvKFcr7gqS+yKatwvQRJ6FRob29fQLxlsbDPNLpSeCF9DbTEF+Jq",
-	"qWjmc4PX5Ji41WfwcivZUnVUytJCZWzKKcy9xSiAD3gpY1Wls/R3O14K3TkFcu00+77UzidOk+uIcvyf",
-	"9HpLU2Pb3PEwz9dv3rxm9ACG4nZjd9GTRpbbQa81It5JV7RA4XysjWOWnOGByoT7A6O0LtX5onLznpu3",
-	"Z6dBNZjBZucHC7S7NOoQufOlEFNhDv0zh/6GpJ6URtrCamkHfw17jDyGKyyGjYtz+MOaCPImZD3LUL+v",
-	"FT4Ymtjm3IL35678IePs789fvWSv6SXgepoSoHQ+S1i6C2qh3e2Xvd7jTOFfwn/KdFFO/FdpXwFunpx/",
-	"g8bvlJ6Q/tdD/zqfCP84YjKvqwiTQLAazmFfKyF7FtIGNnDCfKvNJUAEJZakDmUr9DXgpwfIWI7G8JEM",
-	"OiKvmOSc5Gd8rUElFknfx7jA7t2t1Qq+SGpZDGas9fAqnHELlO+BYEEI9FLBoODqkmXaGDKjb2+Sydv0",
-	"Pu8s/rYAnLOY983HE9VCE0kDycfl0lQg2kyRTnxk04Z3k+g8RjjlIkN7bcKmRlhMxKHykqIOkArFrLst",
-	"uau3VqGJ6r9UlVQ/sgpNVlm1b0+C+TI8TeKwbVPGXkbezHnb/GaRwNXaqsmiQjZuCXI0lhmFMfi4siqs",
-	"bE2TGQ14XL1Mn8/8EB/qL+5iYLoP4K9nCSaD7YIN+Nvx7IgFkAMV9VBiofI6Vaf0un+dkN1dflatp1Kq",
-	"jRPVTakYt1EW6j0E2t3JQrVOAm3IJ980Z/YOLrSppoLw7W7rDRMBzkpFZQRaJOOwgyVmOQfUDRsexAAI",
-	"q1NxjOcfCHUze7Uu0pXqGc4Ock8nqT+fnH+DSHfXuML1VbXa9LDpOxtEIuqlpvWPIKKb25/Pysjw3JIo",
-	"iCLU+sOFtMZb/XmbBQg2gvkqyFX3dLlrM95DDZykTjRZabkEFKGxPmkez6JkRwR5KkwIdFtfHFqB5eti",
-	"Uqu9Z20ArlWqZKmnYX0MfOBA200N/G1Aq63tCxGsS6B3V6f2HRjkp6SWMfFb9Vblf/wYyla56+fVgZXk",
-	"bhEJhXJmFiMhGqSqKqAb0ceWNT3ZzNVX0c4VlLLe0JLrdSdr6So/YL40knpvGUtbp6pxviQqJ1IrN8mO",
-	"v50z1ZhaTxLtbiU41+tHcA8U76/JbN0G0DYonmeazIdBgDSlsofXRrrI43hoBK+Z0GGdP5RPpFpTzsSJ",
-	"zkplv/Vj0xc0wRmNj18hH7BVOhF+d0wTwXqDwHOPvvQ7pFkuT2N8GCSpj/O2JLclx9ygg58AVxaAektI",
-	"R/RwDN5PijgfC2RU/Be9LUYI5sSNi9w1R0xhBQNndMGyMTc8c8JUMeyOD6g6GBsKXyEq48ZIPsImkKVR",
-	"cyE9+8HctiSm5/f9/k2vtwN/fgF//Ab+OIE/voIv9571+ze/erak+N0bUIjvKJffIaNufblyafgotWxb",
-	"X4lCGtgisKMpoF0rtyIzwnXZOfakQTO3xsLC0jWbceVU83jNkhI0Y1LVP6WN3JpQhUd0N9k1AHE921aM",
-	"cy0WLk2h/tyxa1lgAFFtUjli1L+HW19Y1aEbkj6UuXTMGS6L7sccYC3dHayS7drarywpQEsLaYM53sL4",
-	"VpclHmGMd72dp3xneLzz7N0PX3zYiT8ebPJxb7896O5ta42gY4ZVgkoFV1HnlaNvMtp9jgEo/u/vptPJ",
-	"u/ngwMcrK2X+m51//+6HveTxkvU0qwVt6HXCGkB7u/b3+2lC5WFglPm0FXb+ZcLs1s02+zXLeuyXLNv7",
-	"8U83Lfk7vXWj9/fWfPBSqvz2WC98KoHpcei2i/NNrdnOxSChvdfnLKoZq7OCqSQx5VyGpn5ko2ipIdpI",
-	"+eY2ZGuuKaf51b2mF/2nZ/j+h6QzX0tpQ3aA5Yfa0+GUdq31rWeM18WgyPB7KadTkbcWhFpkBeXkgg/s",
-	"hWkZ/F//+f2/PfvqfV3jMioYEjk07UIsW9tyPqp2wkdFXcdh1tF2kwBuD9u2q/htPHsTOM8Ft26HcoBt",
-	"qJfUDRgKpN1i791QtROR1ZfuIxdxX9URWudf2qNQcSoba41vT7QPS/AttwYzars34UWBtcfLCdPDvuID",
-	"q4sSXZZxvRZ768Gh5EThHrav5gqLYZ/XhbJKc8WzQX3uJJ293Rv68/f7+PeM/vSfLP4Nm1sTxyqwv6Th",
-	"q8+n6up385/35774x/nP8w+cN744xmVhMz+RlUa62TlW4KIEVWz1eFxS6vIcNTr2LS5R+D1k1BaSUewC",
-	"cnQfvNBlyH/tITYM8cqjr1BeaY8YJ9nQHzHKEvS6lDpyUwhS1JK7rQkvHg6VEAPygUuq0X7s3JT6IEo1",
-	"1ItbisJcyH1kGz78UuGVqjtMNKqeVrcKK1TavuKNnxdMxkmo9yBd1fairnpGzSt8gktfUW15qr2MTWdt",
-	"XVBVOt+UwCZsWmhKgb0SxmJHCx+HZxFTfC9Qm7B/OA5+cqrc2xCx+qqvHj2i+pu+ZYdvBMEd9TboPnrE",
-	"op6NvosDFnqN9tJXUR+P0L4jYddjmY0xLbrqIJYbfq1WNvboqxWdPRAGzeYe8M1cg4++anb4wNtHha9X",
-	"tftgc90+2FfY35MOFKaqoVyLIUZMBXe+ZQRQkmCXTxG6v/gFO6nKstm+2qGwIoqroy6iWERQ8UtxkeGs",
-	"b2T49uzZCXv8+PFTtpUSRzlklcaUbid9xWDGt29OmFZMl25aui6rJXO8xOQdheWpEY2KDfOJKtkurOil",
-	"Lw8OP/qyeKdfffXVzq+eHDBiYLZLy/YKDeigM/aSv2QoueM7syNYTmjC3mx+7utzcS+++HrBLb1KsMc4",
-	"W6jYFTUcN1q7bfSJA0dNE4bUnHFmYddKFLgjrwExYnBwY4aggjQ6ulu2lbaJLIeU359ud2EpwUhQDQVA",
-	"ygptAQGAHRZFwixFQlGfjBLgl3GXjeEU1Yxmg7HqRtKw2twXgMGLk+uMaE8FMyJYA3HEsgKL9oHWVNJA",
-	"vpH6SGk8MdwMplvnGt+9xJ7PVmIGB3fCMF8uwzKe5/4NOvpQlqYmf7Yq6mBDVQebhNrJSJbIHwCQwBtY",
-	"37dDtgcs//MDdnx+cnrKCgEag01YLkeAplgroQv0/gL+OIQ/dtKEtsQpFJOaDftX4X7hu2yLxB+W1tc7",
-	"3e6yt0piEVS0jJAZBUaLLCkcEXqIKSweIaO2x6HCALGVviJSmO5e7aXMaBA1FPYA34AHHvvAATTUAHCV",
-	"6Ctt2ERjsVBkkLCQ977Z/Hs0B71nI8PhlN/31fudnZ3qf3gwZqfsfXxW7D16/5FlJWRlQO6Ftef8uzHz",
-	"Ze/Z89MX5xjEPwolM9/Ti8SUK9YSsxQaqcm12XvgLdbx4bB1BOI3NbOxR1WgC1bcA3TyAxP3Z+8Z/kNa",
-	"h9QfFoaiGtIuGLUMlJ4GRzjj4vrqq4bQgB38fed2hLjvIZZPJPE1kt/FjRMK8KKvWmSMQ8b9UY51gUF9",
-	"jx4BPmslHj3yIueE2v9MSN8KO+kraXEJImfiBkRf6QrMnTaCGpH7eja2oh3wdOCuhXACO/v31aupUMev",
-	"T1kQ2ULc0MTXm+b+rtY7B9JYS3OH7Lt3aV9thXEed3uMF4W+tv72EaC0KmZ4DV/BS/sIXXjl9EvgXgpO",
-	"imQtC1TxmE3Waz9O0JOWHfT2jog3yPCtJ+kgPXlI0YLw6cddlu6OsY7NH4FI7GIpHPrnRDgjs9D2YldP",
-	"heJT2Z3xSZH2FTJ5pf0kW2kAHAJiO1AA7OVSoTslc2CvMrYQrr+VLuvMnSYEFN5XqQ9cBpLUElTf0jZ8",
-	"IeAYqLGPOR7o3HMNkFOwxfrT3t7KeGTRHSG7Sncr6XR3v1m9MGVbab/T72AJG3jzeqwLen/7iGY/Of+G",
-	"ZaIoYNq1I5wTlqoUB9zbGXDgi9PxzGK9EbRcb6FMxxj1nmeIGUqwve1gjvIT/Wo3yFSpX04VBY3ruS10",
-	"Ogz3fSnM7BDLU8DaptyND2VOXCalRRye5mIy1U6obLbzWzFLYZGAfJW9diItCJLKx2PHoMeBSLKVNpge",
-	"DDEwS+wr3fVX7UVAD2ZnyvGbxKdwgJrimSmxtSupC0+NgWEd9HpHcVd6afvqOmpYPyhXd6pnWyDoe2d5",
-	"VGE5SBd9BTgHjL5C21C/iTMjsFa0rGHELsUMha6D/X1gcE96PdITgG70VZ9ShRQvCJX6naoHflrnaqRH",
-	"3mYCktgIFuJvsBeJCg1X+KVGag+TecmVrGBVVoi0DXZe6S4kpQWm20z8ANEzBp9WAuXFYGggCQup9qWY",
-	"Op8JXshM+JBvso13QEg0UrhQwZeyN2JtkiJMrPe8d3vdno+6ABrVOew87va6j8k2PEbFO1A5+PdItBlx",
-	"lb0GOWa/14NbV4iQv5EJa5FoFfJKdNlLlFMC5etW4VpSq9O8c9j5O+G+9lPN+cj2ez2f7ulCG9GI4v3B",
-	"h7zSRb3NOOXLn6HqPbcPXCZA4wnN1zZMta7dUKCUum7FVovO4Xfv0L5FlSI7z+WVUAKNlA4zOr+rd27J",
-	"4BF4xlIgvzYa7r8oLTnoxM1U+yB4Urzm4XtEj2DKCTJPkCOB+7hrbS7JluVDaCxzprSO7tTCmbzwK7v1",
-	"TGBdu9OCy7nTmLdCLwDez/AQoI/ANqn2sfQQYk699CTejAULwkqlFEVU4ppbNihlQRXd17r2frjNrn1Y",
-	"5AaAjpcOclZYfsL+8fjF84eA/5tYdVwFehKf1qQx3ridc8eBnzPufw3GFs+ygF+WxuAGn/Qe91Vtf58/",
-	"lfarf0aL+otQI5wbWzQI8xFkCd56fPtb58SV3yp+xSW5AVYdKzXeuYWkXe3t1oGrraf66BGaYw8fPZq3",
-	"wC6octoE1QWZKkXeMCUwz2sojcWq6rkw1HknjaLdUrRUeFHWs33FBrO+SmUe/9hlz2SBKnmmJwMQAVFW",
-	"On755RFLAZlRMMW+y1Z6g1vqdNpXVbHOhA20GwOtbaygy35L/QCnfORb7xxSPV1ileJK6tL21ZSPxGeW",
-	"pVGN+5Rxi9DAf/vMWkH9X4a03KO5F0AWa6+6z45DR0JpmcZOhUcoazStYbkgZ6w2feVCt+0Jzz1AEI3C",
-	"5AnpQ702FHourTsJ0cCVrGzRdQ9cooOScIghOGzGK66HQLGX/0PSPmwdLHN/Y1Yxlvc3ZJV+ut6QjSDk",
-	"ZWNGwcRrDRrFKC9UV+OmkIBtjZud1PiAka4tawDMaSxgneCaxfmfc9cye4V5y2Z3+h7mfs1Hgln5x6Wz",
-	"hFqD9UTen9A5fNKLsiX3GwmSLdkfi3MD027id5VuTWSjaqjRtrCqUcbal8oiS3/3gEyvboHSwvdeKYEb",
-	"gl0SD0Ded7AO7/sNr0q94St7t7/yVnFvNxU5vbQGt3ymzUDmucBogIP9p7e/8UbrF1zN/OrsX4ibV/z7",
-	"hErcSOsbUQce7vn1u6SzYGzEgNu1YmybzH/3B5l/eAAJACPbSP8eStdlp8SlKt+fVplIan7pG0ECVuRM",
-	"qr5Km716fDNZab27xoiq4G67bEjJKwtsre1g6kfo6p9+2Xl4/Fom//suLz9tlOod3P7GS+2e6VLlf604",
-	"eBxyaUNbIfSge0c8po+EtlQPjZ276ANZC0dX42QwdWUgiedMXIFqzAe6dFEYWFDSTKkSpou8EuC9QyFy",
-	"yKDxaDoVKt/RqpitwsRj3MJPEh1xac/1Uo0cwWR/RsmfAEpGVw9dV5kn8gEDPTItw8ANUG5aaNedUjTb",
-	"Q3BGUA9hDtQecTJ7NQImZxlnr1/+HZMTkBpXYNTrQrvXL//uIXEK17DrodAiow+k4iSfrGPZwl3+jEV/",
-	"cSyCixOhT8LoFj04Fwu3/AFQ6rwK06zbS4eiNGzCzaXIt5MQBodNl2nnGA9X1cXsqwFXOQmavOpkxqZc",
-	"iYJhYUZkgYSalaOIk8EfXTl9pfhEqlEYv4rfi2IDYXSv9t+G3ufffAL0tlejX97cyVT9M0L/RBGa7s3D",
-	"I3Qd34Ol1rTdBKnncfh0IRAV9lROmdNsr4f+Yh81FkXA+g1jPAQI6n3F50tsEjZnLd16uGNp/X3KtrxN",
-	"iGJIQ3DtdpctuJS77HUU28SjDiXV6riahcBPNNGOkbOjDnE95s5H8dhQ/U+bQBSOGkkqfYX9+izarYk0",
-	"pViEM2WWz4Jrm0ImCwwWK52VuS9e5YOKRd5XWIINpkFCxjipL97i7NUcCpDELv11pLCfB933fXXQe9pG",
-	"tSinLwLKR9ItRKzf6Hx2b1L+YlXxD83sB0zdekA1o6WI9xLzmo+jxtByvPNYVy2EL/iaav+fkd3eGmT3",
-	"RKth4UtwH+ytsabXfFZonr/R+jk3I0HvPVkHALacUlO4FyKX/M2McgIP9vfXedmHVgCl/ko56WZ/tWbI",
-	"ucbowxDrE1s9Yi6wJo9ZwVNMVcrvdnayWiZ8oa9QOiPyhvkC801OgbWkoXMpDRCal2JwYF+RrYTcgHWV",
-	"QCrj5lOCqLJfW/opo/pzUo0ww2NVZTYfJMxhATB2yrYO9vcroqyV2O6y4wZDwVKYrNBqJMziztDp9/Sw",
-	"pYtrX51h3reNbT6YWqL0NTFP20biqYzCfZhV75+4N6v5fWLCvtSce1aVjPyZWP9MrB/cOLYQGn/f9rGo",
-	"P9St+vucvasg53DVuUwPKTC/ChodzND3syxK4YWf+gHROGqbtUTf9fv/2d95/3e3KKJEoeZdiWWNqJVY",
-	"6wXmVXGf26WH6IZSL3TsT0vVMaIee3td9lpbqvGuKA8N/o0PU6YRKHq5HA6FQfUSJQ1Qn+bvfBiaOnne",
-	"RL9s7ff2to/6SmAIh6m3DuzYp3L6lGNk17FUUg0i0cHaV97CBWurly5ueOaKmQ83aqzrM1vVBUXdta/C",
-	"QpVXe0nOIZkBdMP9Xm+7y96MjbBjXeSWFWLoGMopw75K62TUFHMpI//uZ7bK4wy5nY2KDHasr3ELRUHl",
-	"SJlvuxYlOlK9DdyfBN3XB6aDvLS9XDV9EeKBHkL8aHax+8TiR+jCt0izKKgp40WIk587+aPqhBuNJD8k",
-	"nX0iVQ+8PkI7f37aNDpLUpoFAuu5zpY0EHrN3ThE2wRGkkacavcHuDYfsDBJ80CSVbbOn7i09rPw9RPU",
-	"lBF5KmqErRo4Xu9Y5KESDZsys6b05e/0PQhhSSj/oqvAm8EMFFD6OV2eb0CUtC1gdMrduA5uq9qhLkO9",
-	"TUIy52mHnYpMDmUWkbOIxs11628LvYtKFtcrWhn79+4vQsZr0fNnZ8tfHtNfqXAad0dlU67tMYnSthd8",
-	"nlh1JJRx34qKitT9OLzPZBtluKHERN2oJnVfhRS/KhCvqiniUzMiciEVxaIbrizPKEies/3eXl9NBFc2",
-	"yrX2icghq5n6ApDtS0W1IijHdVA6+i3Yt+osSi/MaoMVqyzbggVgJYGE8aKI2rWJ70teJMxpzYbiuq+o",
-	"3MA2+WxkUXjPTRLKA/gKWLFVrunvOGSGX/dVzh2vww7d2GDhuWs+67LTOEeXbR3c3GyHWjBesMKDOisL",
-	"YdlAzLRPafTpLyixHsbJlZPShlIXFGAGHwGm9TmFGmalOgoiMICkcjRz33Cz4ANRYHAWNxaDLftqyyx0",
-	"bGEjTYnAaQXJlC6Lu9ahZIOvCWHHcGQcK7XUZuEjf8eYzBvyeVzxnHKmf8GipNm+Ohcqx2IMzTxap9kE",
-	"lAYjHLrXLR8KSs+gMieAGnVZqKjDgvV5XhNc/qWYUpVM7lghuHVs/4CNdWks+fCrDl+gbaiRMFMjFRpV",
-	"OTv/+nhn/8nnh3HqLkXDVcBn3LIpN5ZKavaVUJnOg/ePbVkN2o0TzE55RiF1E0HNBk0uTIDoBOvhbR/R",
-	"RH11cv5NYyJkWHUSs62SYg2/phzvwcwJqsNxDgrppZglIfWk2lRC4XuVAykUCMjp7j16RI2JOda9CNfg",
-	"0SPKkwWtr97Xfm9vLsUFV4FeySCm+7IylMYcH++ZmBZ8htOaUqRYuNSKDLACIFo7V5vbCaq1i/d0iInE",
-	"8YNRamtzuxUBkIoNCzkau0OfDohTX3OswMTwDECHJqRyURs5JycCXaMhN8ngTkAZRhlqJBxa22GULdr3",
-	"mXBmtnM8dMKk20wOYeQqfWcolbRj9BhINHntAIEMk8Fd9sQJSApM8AQoS/U69mIGUn4pZhVqwdXZSjHF",
-	"M7NX6XZfAdNsFPoQNyCow5NdRiUST0hw2QGp/ZBVL4dLDsjhc+59iZhMT0TdxWvheqZEx9KEpfXEWK6r",
-	"ke61FTgkUZo05LmmbEtPqZjO9pF356fzEhWsDoh1NC2SzYHw4h7bOuj1tiuhFy+otOztm2c7X7AtoI/U",
-	"XwtQZ4fQccLNJaaOYT2cfDvBkgkHe1/0+mrLb91348Lmf7m/3f1OesSeP4MjOjl7/ozKEgiV2+0uey6V",
-	"sJ6x4IXsq6qmDPp9fpGGwAE6HoxTAAoXahJSpy8sbRD/0KV90SWnVC+c19dkoAPrshOssGAryyr15lIz",
-	"okC+fgyVYcDiK76Z0Ps6fMLoa/hI1B0/zBWWqYrLXEqFhWFmwrL3LA0jpPgB309DnRbiCPXDga9Fncfb",
-	"v8TXkSHVLxOra7xK1RR8tZlm8YrwltIToHbzTVf//E//nfXmRqjqSVQv6/Zmbct/wHEICBcSQaJ0PUvN",
-	"POd2GgrEL7ww1xw5oQpCgvXYFj1CotjeNlW12WEUUUCrAaZs9HWXVb3bQnmjKRp/4EfbpPBY9KI6NsRX",
-	"fwqxxEm2PETEQCEFd81BmsexHbRPZCNzM0Tw2vIibFQ0A6eZmyGC2HaXnelrz2l9QQbg15X0AyNRFAXA",
-	"hxojIR7E8/rmqLIuIKFmiAUoItCDjdpnpRUs7WI6aC4yOeEFw76KWCMj0DUkwgqpVLrXfSJ2HqfbCVOa",
-	"invp0nKVW2YFUDenMXX0JX8JBPVUDdOK/xfyUsR1qShumKppVRDBiB+Lvl2FQoznNFifpZlQCkQWk5kx",
-	"8F9ff2YZ4HRFWfFm0esqLtOTlx6keQAhkRoe6vvUMKTffXk2gKOXw2v2rqp2zFVBMq4imuaNKkDsYAzv",
-	"+caHDnpPPydZKKrugQJ2wnxzy00abjLUtdqex6osdGcQxpQDAjBGKZHguPXnf/pvFLJWidlUJtITViJb",
-	"2mDVMh/gA6886fW8yE2f46g3mvfc13oBtcOXkhReBwQBAHkdFpPAYDOl1Q7RBLJt+uKIjBV8hvLMQFNv",
-	"Q1R8yPwTlYD5zOKglGxsIi8EFtgzvgYRFXlkIVoB60kR4LrdbhqgT+knN7iXw75K07SvfuElEpo4op3T",
-	"sXYaefvOHtvyDHKREW73FVzSJOg+pBY2qXog4EmF2UmgExhZhweSKAnPi+T5XtLrPkl63d5ebz9JVj7R",
-	"e/pF+xP7yV63B0/s9560P/E42acnDvb28Am6A+H3BF9+0ku+3en1DvaXPLD3+DE98DjZ9wBd4vo4K9XG",
-	"ARuR3P5bMess2t/gZuBN26r7EI6F2ibtyuuz6NFdYn37yATtTVYTXa2azy5b1z3kuK+7toU+hEFKTqq6",
-	"nctWOdcs6CPTp+slVvI3rE4DC/Ed+wNQli0o6uy2HtDq/lAPFhRURqGeSSeoN80BFgGB/JsqZ+ZEIm9v",
-	"W72Gw2/vPvcVWmgssRajgcKn8VFMB9FNSsfdAqnR02rjdfK+WrDEJOxa1C951hBMBUFd9R7XyFvXpvG3",
-	"VIRGE0AoFSNt0F78bJVDWA/R6175xUlHbpogQA1ex8FXVYj/kKzpU0T/Tam8U9GUioIUf/Yn/uxPfOiU",
-	"Dm2xVrFH5CEWHQ3IHAd0lauibuP+Wy0uiA1S/5e7IQK9CREmVTvdQ1xxEN0pfKW2LXiFFI2nwcTgv/PW",
-	"N9LfjMiEvBI+K6uGwbKKUHeQdc5K9dApxrCs5bT6Z7feTyHbv9G5+j5QjIoLr+fni/OgrC0xcN1wletJ",
-	"qENb+TH29r9gA+nsds0GsSGjr1Pss/SpqRTVwyIOW/NUVcyOGqXEyWeFEiBgmPd/9NWY2zHiHTm/Cj2y",
-	"TLrlQVZvfMuph5DmGn2pPrHE1WhbtgSP8ZiSulqEPwBqVAU66U8dy39m6w9PZRC3Q1HwiMZ4UrFm+AA9",
-	"XXHvXBSireHREvpyhqW1bdxNTbqm2ay3t117eXyoqk8+w5DMqjsIWuQKrA3ZVrL7oI1UfInLDaTi9iAi",
-	"md85hMj3wF7k7AeL0CKw/Bxi8xPAEjqKj0CTZmXMZm+i797BffAjzl+C08UWPq19e9hW1MZiuxvFlJXY",
-	"EX6hcaevOjDf5MdiUQJp4rJC2Pqg26gQBzL/4qBLEqY9ZjbsoPF4cb7e4qBzzX7iZoqNwDlx3fIyBWtj",
-	"xHHoshBkFGmiJkUMexRJES8rhFC1jPr61Ddq6MZlA/EqtJQh9MWcQxQU/tPXFvb+k6jkbXfegkVgeffh",
-	"/wUAAP//",
+	"7L3dchtJti72KmnOmRDYUwRBiuqWyJiIw6Gkae7RD4dUd+/jhjYqUZUAcljIhCqzCGJactjhG+9b3/gB",
+	"zvED7BPhmHD4rn1//AyeJ3HkWplZWYUCWOCPumdbEzEtAqjK/1z/61s/bSVyOpOCCa22Dn/amjCashz+",
+	"PGc6XxyPNMvNp5SpJOczzaXYOty6YIkUqSJakjnlmgzZSOaM5OYVLsbdrWgrZx8KnrN061DnBYu2VDJh",
+	"U2qamnLBp8V067AXbenFjG0dbnGh2ZjlW58+fYq2ZjSnU6btME6K/IqdPl8ew7sJI4n58ZEiPDVdcvP1",
+	"jOrJVrQl6BQaTtcO5T/kbLR1uPWb3XIVdvFXtfvdd6fPt8x4TlM2nUnNRLL4E1ssD+SYJBlnQu8kE6mY",
+	"IJdsQTqUmPcJV4SSsZQpSSaSJ2yb6AnVZEovmfnFLBhnaV+YITKliaIjdkQUY0RPGJEzllPTyyNFgj67",
+	"feFmi/tVzjcY644ZbGXd6fUrJsZ6snW4t/80MvvgP5tV15rlps1/+fF457+nO3/t7TzrDg533v+0F+3t",
+	"P/30H7b8dimdczHGxRFK58WUCd28Q9z/TnjKhOYjzvKIUEVmUmmWkjnXE8K1Inkh1KpdLDu57W6e+s5h",
+	"2OeFWHWm8kI87In6ZN5XMykUgxP+B5qe4/abT4kU2q4mnc0ynsAB2J3lcpix6e/+osxAf2rZ4xm+hZ1W",
+	"p/qaZiOZT1lK1EJoeh2ReS7FmJgtJjInlFzRrGBEFlrxFM8jNntIpu7dvvini7dvIkIJHgkyn7CcEUpE",
+	"MR2ynAxZJsVYRYQKUohLIeeCjDjLUvOKPXFE5n2RUzFm5IrLjGoGv34oWL4gnhbgvUklU0RITczSLMw9",
+	"+BRtnUgxynjyWVcPDgpTssgTQ3+UppqRkcyH3FBF+BEvdIcikSI5u+JszlJCs5zRdBER2hf4k7kCstCE",
+	"khHXEZAFfBnuBiw8nTJzf9zdBhqjNM8ywkXfTH880dt2PV7CMFImPveCaHnJBMlocqkIuzLbpxI5YyTj",
+	"cNO5IPH1jrs6O/CbirtbQEXMSaDZizyX+ecctuuYMNNzl5hpDGW6IIouFJEiW5A+cKfyof4WoSKtbLIh",
+	"Fp+irTdSv5SFSD/3uhvKlPrjWF4Sds2VhpGd0UUmafpOylc0H7PPPUBYUXadMGZvh2L5FcsfKZJIMeLj",
+	"ImcpyfiU42gvWH7FE/adoFeUZ3SYffYBp1TTIVWMJFSYlRyavabJhKVEyHlk6KObBk+Y4fJqUmhtKGAq",
+	"58KwjrokteNFqaZx2ad3A6ELhvZOytdULCx/UL/IjX6k/EHPDZnjisgrlgPTtpt2X9P9TtBCT2TO/8o+",
+	"6y16zZXiYhyVnC3y/ErmhnbLS5aSIaO5YUVmVWqT/uGHH3aOCz0xUkZCNVuWLeI/wNsxUnUqSAzkJCZU",
+	"65wPC81I5/zlCfn6mye97fUSdF0Mw6Wb5TJhSpn78kJorhefcwV/YFm2YwUKLmaFRoY9zBm9BEm3yBiR",
+	"o/DaHNkVUDFQMEXMDesLORoxkZqrBJJCSWyLjFkO951QxWwmc83S1yzl9B2sx+fm/nAlHilygr3umFGY",
+	"y2EIhhQ1CZ7QJGEzrbogfto+zBCO4XsqEnZqlg3GnqbcvEOzs9w0oLkRFEc0U6w+kvJtoic5UxOZpeoI",
+	"VhLGkLGRNiIc0aBxmCExMeaCgUYxokWmSUdNUC7LMuTSUsCDU6YnMoWjOAvG8dPWkCaXg4RmySCT84GW",
+	"GcvNCAYzlMHYdZIVil+x107Rw/NrTgfVW4dbqSwMTY+MRoIP7PV6UZNeiGKk2fKyzykXgxlVajDKaYLL",
+	"8NPatlu3/HlmMpFTqRKWUqV5wvViQLPZ5MbTeAwPfYpQGDGbvuF7RiwbyNFgxDd9c0pFSrXMG1Tfkwkz",
+	"wt7cKL5kRHlW5PgvHrUrlqc80Ud4FfSE5YpQox+kV1zJfAEqlmZTddNYoJ83RgGD8Vyf4kt75frSPKdG",
+	"3S0E/1Aw+7vZLTsBlm086+tBrh72KJijnLErlimrn+OjT8L39peNJPhiPlAfCpojo7zD+ZeFzjjLB4mU",
+	"l2qQPthkXT9KF6CLWxb/IH3lhVAb7vcVy/nIcoxlSlA99h9/+/yjUZCDV4wKKFKap6RzevL97snJ99tk",
+	"ShfE0FZCx5QLoydo1RdCTrlRJkC97pLnlgrv9yJCjSREvrsgL86OycUPO08PviavgQqTp71e73lfJDTj",
+	"Q8tRwu7ximV0KHO4qo+UJd9EMa1AVDNyKRiOHmDFP/lv5PAvLNFmQUvWdCYzniw25GwvQIH0TM3wpZHM",
+	"ExY5vqVKjrUxi1qe6t0ZziaMpcXbq9lEi5cbmESLtxpZRIv3Kgxic3peoeAN5LrVCCrEus0bFdJ7Kwrb",
+	"hpJu8FaNLrZ4s0rlWrywCY0zMi7SuSyTc5aa29dM8RTppAERW02+QJS8cZifQs3nx3Cjakej6cCuvDer",
+	"r2O0llisJwT1c1I9icv3sLJnzVu/fIzCC7Z2D983UWF3POo+C8XHAhoyugMscPPueB7Q6z4JeUC31+vt",
+	"NZyxY0GzBeq/a6l9lV6jcb29CR8EPX2jwd08Uz9Q0JV9v3HFipTrF1dOj2w/h5I51FRjowjPqSKpFCwi",
+	"rDvukjgvRDfJGdUsjSMSgyG4O+K68pnOZrm8Cr/JmRkmS+PusjcmMiOQDd46Q2id7o02WtDNqWmouZ0a",
+	"FaWa7Wg+ZU3PpkxTnjXTjxnNNU+KjOYqIlwkWQF6PXXG8BxMS1RJ0W10LoXbRs19wglGW/762d5X7uMr",
+	"Od5wF9mV84W24mTBaVliZbUZ2JabxnpCCzM8teLwoK1ZGQrLFRhE0MxwaK0KcIedkBmYVC1Z7osk55rl",
+	"nJJRLqdkVgwzriYsJeOCp+blBvGRJknOUq6B0ER9kbNxkZkfoX8rXF68PQPLApnlLGEpg6Zwc8lwAV4c",
+	"mpkrm5IZy5UUfeFdxRmjillXplvppdM15cLpesuCAkgRG26v2cJCI4utrvRL8ziZTxhaPxLTOElkkaXE",
+	"moDdu7BagsSGF7A0NpsBfcHKxHgkY/QgzCeL4GgPpcwYFdVrszRnsKk2X6hAHIajYEZkGA/YFI+IKLKs",
+	"PoMJNUdFgE9vTtE65SbSTPFNK2h0R71gvbxXP67MqPmB/cj6uvXEDBdGlLLEORS9gQCMA3OumJ1YaCFY",
+	"Xrw23KIiYuJOBasdNIZek8ap5MxbHvHW6dJqlsgpg+vUSEGVuTdGAlmxj+Drd8+YrZkyquDOgloYbuWd",
+	"N6yZ/5UjdCfOL1NU3pKq7GGXai3ZLde9KVACDoBlRQHtmoGGeEjiUtozPA/FvTjqizgQ9cwvdSnPfOcF",
+	"NUOnuBTmOy+aQSM5M79csYETXQdogo9I7CU1eIspnhY0GxhpzXxhRTIFraQ5H+m4S+wf7h6a9SJUEy7G",
+	"TOlDmKJgcx+jojI581S6L/CGUAEH6+K5t42Dp7cMmjC/UhSpHimy3yNTqTQx1FbovnACAnaiotJj/ANT",
+	"ekzzlKDEAGdYkY5irC/iP754R3av9nZ1zkSq4u0uOa3cOlKIjCkV3uKMK7AjEKr6wp+JyF4L87I3NcOp",
+	"HRn2buQMQfZ6pDbOvgDXZOT6wQZ8q6QD9BW/zRka+kmNdm1bY4Yw0mijmlBVEBpUg1C4t2fGSOiBNL/i",
+	"wISSPTwVHJdSgDd/whEJ7omlENHW9Y4Z+c4VzcH3YaYAN+c1F6/cNPALNxf49Ioml29HL2E68MW3y3OC",
+	"7/9Ak8uTyrzg6/MLPzf8bCd4Yef3wk4PfjwN5mifxome4zzhu7flZOHzc5wxxmWYU4rWqiZq4CxhSfig",
+	"ERSRPPhTb0T1G5STvV7wvxuMgydGQAJZpYE4z+WO4qk5qf4p1I7MBYVNv6KZikiv+4RoSXrdZ8+e3ag4",
+	"PXv2rKI6PWkelc5l9sqQYrWhrexiwuYTmoPsZxpBt6windOLt+Sbp9/0dva3HUvxsSZDqljGBes2cJAm",
+	"xWYw4eNJS0ODfSOT85YvwP6zlg/PaS64GG8yIPdK2xHVeKYdXrWd2kAqs44qi9bIJ3GrzouskVOW9NsI",
+	"Hx3/kWlCs25ETjIuuuRkwqZdsv8N6ew9e7q3TQ6ePd4+JPHezr6K+yD1YRDXkC2kSMnP/7ZvWE3Hjnv7",
+	"yDz6WMXgKvTPPCYXz49IvG8aIXou+yKRQrGkMITCPeZ5FbQI5+2IxOc7B/gOCV6JTPN9QYfyipHfwfPO",
+	"pwtiH0SJzcnf/5f/dR97PtjZUzEZySInyz0j54Su98Ku93rXMdFMVF6xnkx4GqLYLJc1jLfKP8ySbUVb",
+	"Zjm2oq19/GSmsxVtmfGY33rXLSm52dQ9bMH89dj9te+/Oz9wfx3s+edM++ZkFLlqUuPfzuiHgpFLtlBM",
+	"G06qZE465hp/fVDk5dWeGcohxmBtC2I+n+ztt4r5HOy8/91/aJJpIRJ3U/80QZsGMv4u+cEpJzmjZpCq",
+	"qmHZh6k55JmRtRLJRiOecCPaG0GsyodVjCpXIq9ozo0kGYN/kU1nehGZfvoCb7RCk4dgpnXTDTxnyF5E",
+	"YquFgCQXj4zyFtl2wb0JqlxfGFUOjkydOCKZGFDdqEPY6RYCtC/3dJVlrLOv0NKetvRbEpgN1upC7jnz",
+	"DsxpM0t9k5U+3JnliZ8KMpUpy3bYhwKtxTJPWX5IDMehOflx2IvIcO99ZL8YyJyPuSA/wncfCpoaaSBx",
+	"z0VkuP++4i1u5xSwtoPHTcNfLQScNLB+s4lDFMZT89mpgV4kaGXbNv26o9rUr/uNTKnO+bXrOFzriKif",
+	"/2vnn//f/+N//OGft//+P/1fP/+fEcnlXBmxKXgO17uyZPe2dusXFo2a66+DjXulyt94kRKl5UY3Ix0t",
+	"9+AkVJKycc6YMis4yhlL5TQiwvAYMgsU9sDhg2ExgyuWq0ZxFdINAu8rPo9kxat/Zm4Qw4tGXnh+d6/b",
+	"6/aaDbbWFYv9rbuGL/yDn6ItnraLNI/CwPlGS5N3gFXn+pwrzUWi8fgrJ5GPUAxfl79hbQk3khUr5prD",
+	"BPpls/EPfhrk7Iqv3hOrn7qHmo+XYY2Voe81RlUYinXTyF/DQ5+iLdF0+ixTKxeMdGCPjUYhBXMqbCFA",
+	"g71xMWeSN5JXdI77kAPLTCM3XZkT12tExrksZiwlw4WlZlwgG1K8JMztI3HM0p6ZYTUxhYrHtB4gyMcT",
+	"kARCImUIqWa50QNhMJ0CVUHrb6wwh+1bmisht+CmeZ3DQ58CZV6la8iLX/qUXXHrDu0sdq+3Iydz/rf/",
+	"PCe/J4LMYd5EJTRjt50AGNRvnAE+ZZ83d2EggULSLHs72jr8sQ3JeF8X4M5ypmCnBKGCeHrl71sUXDiO",
+	"bq6c2WOI1lF0VA/aE62ajNeQfeYWHx9YwSXB6bV0tu/K+5Smumh3Sy7w0cBXWZ3GdyffvSaJLLWS0uJR",
+	"sYh4+8cSgXTiwqAV5frePu0pmJV7b3zPPmbUaDjMg4SKlBve3OSw4npCYlpoGUc2C8Q//kgRlcicHaGE",
+	"Xlr9W5MfpCInrsEmGuTGKMUVE82mp2/l3N5LjEeEy5lari3MCcm4MuxcElVMzT/CpTjGAX1o5unYsPnQ",
+	"+u794F9ZvoDvXN4VI4UZUwf0ZsGIzTYEayuut719EJcM7CUczcD/cO/jCszEVF0i6YbO/8pyOZhQkWZ2",
+	"OZa3wTxSPe4KI+5tghyZs9zovDNtfZe5TIuEizHhYsQF18ztpDtU1mkiGKG5xKO13rOMGX1Iorw8six9",
+	"RNU0RKeX2dvtpIdw/5tXv+kWNZ3a+vLVVK5lOllRLqqMDITlqmnbdOAN5oE25IUOryp6mc6x0pJyeHoY",
+	"VfTgihYQqKlLUnajYQwSfsVLab1ym0RgrHCbTiX6UuBw0qEsdHstY0gVb/TLL6xPE1mfCgIUuSBzmaeq",
+	"kTzcSmd3lpebeU4xndJ8gbrFjOdMrVbEuJHv6RVTOG4jIJY3+ZEi1oBN6JjVjMdSsJULuEKaCZQOqvQg",
+	"jGJqT4++D99qJkkZBd9qJVCNGm3YE3Cq46p7tckEvmQAhh1wpyHCaJRghZumFez1ynP+iqtNw4xufYA2",
+	"MPrUjlKdxQp2rQfJCjMlmi+dTGMeJbPyCFnp2KwWfN29+cg0bYXZg3AUbdYatZbN7JdvBVtSs8qU9ZTT",
+	"sZBK80QdERp8hPgcf8S4ruVkko6QaCeQORGS5FJq0HeGNLncCdyR9gF0k/XgEeeSROF3XXZOAbnUjeat",
+	"QLg0k4J+kb96af6WukpSd/q1solBoCNX2tnFbtGxU3ibgzxQI7ll08AmVxpQcjq+7Zi9exn2sjkOd6/X",
+	"+/lvndqmgiGrstTbu5WPt9Y0UWa49XxQamu570HY6yDsuTlFO1sQ94LCdGd44ZYzRXlrlZmirsSDgnBE",
+	"enif3VG7j2gcPFv1exMspR+qP8TBNq1Yw+BgLt2uaIlANJ7D4EKtJKgXXheuW0kgABBAEbrkuIyCAQfL",
+	"DLM7B2jViI98OCjE0RlK1w38ctWnDee1oSQwbAyGbRtfUY75DFs9d40GPx2X7Qffnvuu/OQte9w0Rrji",
+	"LboHF1DF3N6uvRHlGUsHpSdoOVy4NKpghh+ib3B01M2oUqRThuvI3EcObXfXhnPWBYl7s2RvZkW+TzPw",
+	"DUkiN9PMTW1jtzc/LduPbmkAstp8S9PB51O3Q/22QUWtnvs1KmsTxXvOs6LZmuR+ISMITwdsGm4UTcjm",
+	"48Iqu6TjQ9l+b8khBmf83/8bSW0T20dkD3kMHSomQE29XbpeizioF6HzaQOZ+CaTcLfBR27zEu6UabDe",
+	"GeKEcwwusM4gy8NUhSptQK5XS345Q3wB1pQ+toLHl+80HbAlXwoVYzbA9AhIkblJsS4fbfip4hFoBXsW",
+	"ziB8PzAQ2R5rYw3SNJqvkj947TSyFVvSPlWoslfL+p07OZbjQQcR2dsZUoV4CEvesiNr2G56s359K5dy",
+	"vQey8disXcAAN2yDJSwvUitrQG27Kh6SJ3ZOq5M06se4naXnHbvWDRYetLoxgnBhmF+dc3FJqCZDqSeE",
+	"iVQdEbeKZS5EJudMYTT1hI8n5m/r26Y5s696qb5yl+5nvM4xDNFJZUe1Ha9frKa9/5bRTE823PFSbHBy",
+	"tbzEbtJFS+kZ+337py03hHN8uT4H21XT0INb2RQNbLPUqAji3yPnFIusXTJyITk5UXQ6Q59qEOX29UGr",
+	"ILf3dYzDXvT140+NYW8lwuFZzoxIcet7F8jx7YnXDTZthN6w2pW1QBtFqlAsPSJCzuv0qB2vrYZHrZU1",
+	"yyeNfAp70p62lEt6AW/W8T1uIC/1HEEvJLpxNB5DG7K1odgTRIW5oK/S8xyaXjDIMR7KQqRhelhE4kzO",
+	"bciioUKxD0JssOLh283WrNWBz+1tWW3wAFYFS29o4oB4aBsj7WQhN7+mDXpFNcPj0A4S6TYBmXhAwGPq",
+	"Uq8wCdLcCMiv4VeOgWx6eW51z9NAv1j3ltdDWqnPdUEogB1dH0viHmzU3sp7VrbYuJG3SWZ4zjRL0G8j",
+	"UvKhoDAB68pBT2SEwY71GAkFGIMzTeIk55onNBuAhhWTDvUe5e11uXU1T4trJVmfyXJ68Zbs7T09eLyz",
+	"T9w7Dj3VeUF0PcvlepDc1sRemdxthuPWIiKLW49iVd73t3Ju+lig494tLjgy5pOFWfHuijRyZtMnmtNf",
+	"w1lZIZrgS2aYOD+zqrdNas1kg6vk9ORb8ud94geH5y8ij7uPf/7b//M/717curMPKztrOvER2evdocMl",
+	"gmwusRnD0mGKVh365R1amwX62tvjNqLcLiH0xqz7OrZQSXU3SN23VOzTTdHhbVxYN0c9Qy6jtUsYtmNf",
+	"2UAms30MF60hHuwr1d5X3L+guSULSy2wxgx/zK9Yc1NTej0AgXRAx2wwkUVTDN8bT4PRn0tSaf2jM57f",
+	"1vm4YQCvTVJeNjRZnwOObMDFYOSCUZZlsfZ25Xuwndrc7cBIGq5qs1G0EtvjL0kU3rbVU27ezXp8T3kw",
+	"V9OCW0Q6oMbX/kJbonMTDodrdvVYb6ne3YJ8oYB7R+pVUZhuMMdUKVs740ao4r1fFtcwEabXffak20BJ",
+	"braatKQYRrDIpBhbu3polHMY60rTRRmIZdRfZJ/3YFJ/+s3TgxvhHG9FftqL72voUjMKBwVXHRdjuz4I",
+	"+zOnUG4Bfa5TuiBDFgZxOyOCB/WCw77djMRxfzStiXT5S9F4Vd1q12CWMWcgJgvyezLskd+R4d7Pf7s+",
+	"InElmcD+bn/yCWdxX1TfM//u//y365//K2ZTPz34+uud/Rr4ALYMgZJBF1vRlm+3pZEN5vTKtRZ8euta",
+	"hO/+XDb7Kdp6CxjDTaFYP0wkySkqvKVN7QhMbP5kuYokC0IzJQmgy8T/Ma7Z1dpWDKka1v4jWNb29r9p",
+	"Nq3d1aD2j2mlWmebClekjKW5nY3xfkJP14EloOmrmitZqFWBMctCM5D89s5vfP5WLnB8dXN/N6Ju3eak",
+	"nMObTcrFCnd8U5jjoGZusb7vykLUJ1eT+NwMboiQXBr4xjdxnYWkGnKIDNwQpbTqOl9CsAKOhAhWZZCk",
+	"VWbwetzWehFY21qc1FFGxw0iSQzIBQPwRsURiQHioPzIrnVOZ1jSBgCK4OlMIhiR+/TB/CTYGCKw4G85",
+	"MHM1/N03VQhrMB0423Pc7YsLyJh1tky70yUpT2ieL6A9WEiwPPdFLKQeOCODWaQYYIFIjLQNtz/evgmZ",
+	"rTmUZ+kxHhjb10o67rngnUEZ1dNoYyrt8EYhlUNNufBpPPGIsyxjeXOSzpRRMdgwXNE58ZqUWah2JEfE",
+	"u5qDDBaKoXjpzQmoNZShZSfZbJbLaz417atKElyjJ8IBSrvDHkTxmwvFlIam7sOkxNOGGMZm0KQrCFDE",
+	"GxUsan1Pgju6fCLWUzDLpDejYP9I9vf1VndXuGI5LvPlCXl28OQbYgtiEDTgqWXL9yrjLkKZgt8RioVZ",
+	"uDHu084ioNAzJq1ndjnjfUVO50sJoVI047Z+SGSLWDRUA7Ggii0ZMkz1pXm5kWyJMup8ZZEPMqOYP94Q",
+	"WAMPWCFmXZWQ+J93rJC7c2q4gZbkQyG1RZzE0DAER33S663EFGwKtzX9fPvu3RnBByCltBJ58qQCP3XQ",
+	"a0w111w3IRFdTGSuicJgV0dl3PkxrTQOVduCLHUf/3fnp07zWLhgrbAxR7uLXBwCz7pkbMbyQ/vMoT0h",
+	"sSWlgTKyXpiCX90cg4jANRbsysE5/KnlBXnn4CK5q33TXRnK1hQGYd6vHflDQsk/Xbx9Q87wJcP1JOKR",
+	"yHQRkXjXaJ1qt1/0eo8TAf8w+ymRWTG1X8V9Ye7mycX34IyJ8Qlufz20r9Mps4/DTaZlBT4UCNavs5vX",
+	"2pU9d/n4GzgFf5D5pVkREIiiMlXFxvXYBXGhPWiJM5KR5UA1wTK3dXow86u6s3fxrd+7v7xx+RA51+g2",
+	"TVWmZrlE4zDNYjKf8Cw07lRsP0ckRhReFAIlRDZowlWAK2nIrZDVdDoMo3X5dKUz/YjEhh9MWJbGfVET",
+	"4oFFYAx9ZFuISCFGXKP/TuZEFTOWK5ZabyHti1bddt00XJSZh97lyaRqpwnWBrMe7OS3oi038rYIX9jj",
+	"WaVB++V52K797gffPOxgKXcuhyMG4J8uvrBjrXROS7By3TCj4pIkMs/RMbe9CUhiNRpxZ/m3peN9Hkov",
+	"9YyPUuxFeS66G8yIX6LNLC0wyCK7HXz7GsvJJmHKCS2atjZAfAcgMzQCdWlaQXeHlBj/OTz/MRBt/N7H",
+	"XDcrNy1y8G4OMtjQNnPJse6lu2rWJ2SZLRskE0O5218vv4snvqHgSyB+J65Jw1DN0slCgVFkA9dGhZiu",
+	"ADmA2q5IdiwfGcFWWPT+huThG2KxkVj5kbYfn7Pm2H3x28qF/vqgEdVqw+wSOJSDFaq8Yg1BC2fS3m8H",
+	"ecRYekS4MKsD8A1GQ8BoacC/r5Co1eNuZyMzI7K52HD+3OWrL/LS+QhD1/2KhvMPMlTWGuIqN62ZW5vm",
+	"XzKWfoY07w1rF4S0skE1mlA1mMp8hd97bQ74GVWKUEVixQGUcWQLpobZ4OZQ+ODH9fts51VP+fYDvMG2",
+	"ee7xkzaQON9NXM1mAKxHrKOZT31JWF24wfLOa5JfVkdsBOUwfG3ROxblSHgbWDlcmefu6QrhWhWvsRwB",
+	"sln+vh9bcAlvSBipDTNgM1ZQ9cmgrfmLafDYv4yfz20Tn8ovbuOVuo/Fv2vWQZADoaWDX/d+cgwatw6D",
+	"EvW0u3qvGnelyNj3ULG9TQ5ZjbpZorrCnGFjgri4ktmV0QcMd+GNgF5t+NpSTgpu9IoSII5Y7e3sK2Kh",
+	"kiNijrb/KQTVb3aM5xbX+QanpIeArhSiWH+BoGk/iaAqQ7mozdslNgbvzQthyHiJzHkP2cy38kK2ARV1",
+	"GLub4ojeIq5uJrGifXMs64ZoK+eFQGjlhpPqZrDC9aoNMzLvVBbAjU6EifR/QUqbqKvWINbiJfT+Txdv",
+	"3wBEtf18cvE90MjbJm+3t5eX/p9N39kg3VuuDJ+4A8/bPMbgvAiCCxpQB7HUXuvmHEbijdFwm2VhVzKm",
+	"/cr5c7o6MDCcQ7k4UYnms16CK4TTAz8nWNKycQb554zlLi+tvUVjzS1ve5ManW6tF7AVfPs9ZKw9MJrB",
+	"pkEc6xNYlmACVqzebUNCb8EgPye1DInfurd8jNldKJsPdq1b9NaSu+VLaDTuRXgJwUzta1huRB8bxvRk",
+	"s3AuTzvXUMpyQiuPl48zemDqtmlEUxgV0ihLb2BhWhJkrYmlZYxSySLvz7KbroT12FvF+tvUX05XmP4C",
+	"C/omkMQ3c/CmlLxgdmuX81ZZll9yHHEVK/djU/3KRm65aCyW+iqepaqOAILz+1bD1gaK3lC5qzGqqOrv",
+	"G9MrBp5DyDvEADOI+Ym3b532uDnSVVW1a1bULPW6E0q6t1ksB2GRhPpCkWvpzbvleMg7QQm1JFUrQhuh",
+	"fK+PqCLwlFGE47O3F1g8EAXP3Z94+mm3fFJh7RwIM3Rhh53yWDRU+9kGx9ZSUGJfwGu2zEbORoB+HYJp",
+	"HNmqjWVcWFl09Zbhi00mYHOxHynC04hQZTHRAH5kxFgKqBWK8LZ+jXsKh7z3eMb1KnLVv/4gXq374Iv3",
+	"7O5aCsa8BdGqOD9vMF/holh/o8wJRmqYFUe4XNtKe8PWPZQdiDCMgsSVn5YrcVlUCx+cDMgWXLQEX9/Y",
+	"71aVrkOJp1086SaRqvXrF8auVp2MtWvSsPubJU6GosU/omqw7n415sRspA1g7+p2ivmmOmwdkuTBEoAu",
+	"Eomhk85umxdCHc5zroNkjkNzyr3t57DERk2nXLQ070JH54VQP9i28Qvs4Bzbh6/A/KI8VCp8d4wdmfE6",
+	"O+M9pindAkJ6HVDfQ+hcJUW6CcB3xTZXzA+fQfVaWtQbHFPBw+HyflY97K6LDO7RZSdfzhjR7FoHoeqQ",
+	"KuyK5yYTmtNEs9zjyWg6xEKFKPMZVpfQPOd0bNi2LnJRy5bcdxRhRbrkv/T7173ejvnvU/OfP5j/nJj/",
+	"vDBf7r3s96+/ebmiDuc7ecluaw6/hQ7VXp5aCaigDM3YgK8ADWxgKOCBa5bTFUtyprvkYiLngkCIrzkr",
+	"R0Z3TqiwGgeA3YOK3VIywR4jXzQfJ3IjWCxs0e04k1vEdvpoeOca4gAkwu5QTeY8g9zM0pN5RBSslVVq",
+	"UOF0tbeLlGuic8qz7l02sOSRB+sYJMh1Hwpmf24qwFHdgMY1z5m4Tzbk6mPfCGJg+v2De/iWDu6bCjW2",
+	"KqpYLSFuLqRsLtFlDoSW5JKxmdnxKRdpgJ/LFdFmTqRDSRAx7QuGRy48o6wlDtaHDbG/fWJBqwU+809X",
+	"kIBbHUdsYFXNQp0XImmulPEuL1hp2Jpzkco5mbAsJVOMQaeC7EW9Xs+tCBSHFRmCfsosZUrbBwANy6xx",
+	"c7jIlYuj2cStEobf3GgkbgbTLjchgPX1Jz+o/BQMMFwyd8ZukNWrd+QOoUJ3CvsxCuEt9XjRBPMcbTXV",
+	"iEQ1oalCZAcL0O5tr0hHqZTkv42xgWWYCLA6Y9b14K8wgLRBJbmbOSKsH0way4eVOxP2vXL/z8ILb8FF",
+	"TGeZhOSsVRZVf0QJtXRpJLNMzlUY3eIaAWXdyGxLBdBCbPhMtg1Erw78wvZS/fY06LP6iysXepEu/3Th",
+	"R1P94ZXEiPaAaH0Gn/Om4f7MUPxmounAZ7RNhbOHzL+BtVW4cq6BkQ+6cwlCITWdcgSwgYfVChQaLgYh",
+	"t15+4HaBBs3wimAZd7v1yE5jHXKBYIaT2vQlqPokJPEH9bbukM2xLKo8pjlvUbnYUP+sC8IM9qx9seBq",
+	"gONaBhWa+yrWPQdM6JM2y5CN8hRWz0Blrk30CI5xeDmKAnoOdbTezjO6Mzreefn+p6efdsKPB5t83Ntv",
+	"xr75rtE4e0zAPFsIo7bI1CfETse7rwAHwv7742w2fV/H6Hm8v07n/O92/of3P+1Fj1eMp1oddsPsTKj5",
+	"urer/mU/xoLAgOZUhxslF88jojrX2+T3JOmR35Fk7+e/XTfgrvbaoi7utXzQZSet528uh6S3BU03HZzv",
+	"y1tXS++CCGoLNCYWpKyOA+VG3PW38cMrnWGV0kdUuaolLbmVHd0Zvmg/vYT3cezVmoubFtZsDR2+eQW4",
+	"h/XttuFoZUZ3Q4zIaMRyJhLWXKLtt8/J7wnWaRvJQmB1Nlu1b3vX/nFLMg8Ntq7h1xZAh90VP2fzxMC2",
+	"dT3/ZJ5fX3TP6CTNO2HY2MffPv9IqJEQsei9X4dHylUpDpFQW5xOcxFXQbHnLJFXLF+48dyhat6dvZ9l",
+	"AsGSRGYzpmHpHinioP0SOWXKBie0socFXNpSy5tNs+4Q1xZr6V6FO+sX3V/MIM9hY0daeL4+Xxyxddb4",
+	"1NdGpWxqmIVDbrJP1lzBQwZZjYabYpxBAwhloJPWS+u2L6hb2/BaMdv6dG5Q+Zfu9DLL5IJrTrOYdE5P",
+	"vscwkEQKzUXBxTgmnRPzbUIzPrR0LhxRyCltQ3gK7fvtWaZv8tQ3UzkwQZO1eX2m6r3htNtbQap7e4P0",
+	"Xe1ig629ZVz02tIMznISFmfYqHTJuuC1N7aabg0pC0FPSC/yJnAfFWGE8bsVYmtVju3OjPKz+ubakH3L",
+	"IVb4SBAR9sQVwd/0HoHNakVqstSsuWI7Jb7oPkZUXvLZjKVHhAHCudQTls+5agY1UsV0QIdqkDc0/t/+",
+	"88ffnr/46DSeSh3nAIdGLQloTcO5U0nbO2HxhuC7wXQjt9x2bVdvp+29ujivGFV6B81vimAfqusURlIA",
+	"SB65sgqo1R1RH7LIPn1RAutdPFdHJKaFljFJJlLC21Np0aRgC5WT+9SUZhlTAGBF5Kgv6FDJrACckrCM",
+	"trpx48AYhVGXqi8Q0KDcPC5IjPMa+C9VXAWfERIsE3u71/jff9mHfxf4X/tJwb9mci35l1/2N9i8/3wq",
+	"rv65/nm/9sV/qn+uP3BR+eIYhvUJLM1JkXO9uDAnyhYsYjRn+XGBtclqnN58LXP+V6ASh+QP8CzS3ASc",
+	"kRZzqkvAdagOSVzGvcQRicPAF0DPrIS+APZmOuUiPiKKMYscBykrXIpHisTXO+6Y76AL0W4OXAkgHzCk",
+	"8tpPtJ5tffoExsWRXJ5SgE6GcdmqAtxTCDhSGR3K3JoBAjnGn6rIHHPVF7Ty81KSWeTK8HLtA8TBygLq",
+	"zCNFSuj5vphBRQyIwiWKgSEVgDm4jiCkEJuKyCyTWEnniuUqDPZVcFMKcSnkXKiI/PnYASGYJqmoeIf7",
+	"oi+++sqV4DSb5GJwqUY0qe5XX5ES8J5w5YvChHPpC0CtHRteD1VrWM6piz6kOXMqiyJpTucCEcBmxTDj",
+	"asJSMi54SsHfD22V646LY+amLafHsMqxueAyhymZb6xmePH2jGh6aZYxZwkDEN0jL58LxlK3FkPDTT4U",
+	"NMO4/RnLlRQOncoK8F3ygiaTvrDgWyINQ6q9VSxnM0a1QgOroSRO+IphdX/zG3IixZXh31KovthBNDiE",
+	"Q8TwY7M+StBLNkig13fcfXv+8oQ8fvz4GenEyFEOiRee4u2oL4jp8bt3J0QKIgs9K3SXlMICHGJMOzDD",
+	"cxUMjW5PkCqprhkRAqDijyMjjTNy+uLFi51vnhwQZGCqi8O2sRgITfuGvoFAVwHvLI7McKwz2VaclkzZ",
+	"siBcadKh1pqGxU1C81lZaIiaVip0HCqueF91LqXeBtADw1HjyCKRUKLMrAXLYEZWriXI4JQNQCf2VuDq",
+	"K9KJm0SWQ4TMBwxdQpwM5Zsyi5RkUpkLYNhhlkVEIYCdRl5l1i+hOpmAE2SBvZm2gKeZO52b0aa2Ljcc",
+	"nFQmSHv8miHBGrIjkmTcCABETcySmYaU5llG+FhI2DGYDFRtsmVYzCwjAugtxHDCnNjUA0Vomto3cOtd",
+	"tfCS/ClftVG5so0q8vU2hQMshpWAE1iet0OyZ1j+1wfk+OLk9JRkTGuWq4ikfGyuKUQZdw29H5j/HJr/",
+	"7MQRTokigiZADlH7qjlf8C7poPhD4vJ4x9td8p3gEAwNQV3orzCtBUFgNPf5B+5CGn5mGrHQdDAnYCt9",
+	"gaQw3r3ai0kujahhqIYiG/DAYws1ADFmZnEF6wuZY9AB9nNoBvIRP5CPYNX7SMY5Nbv8sS8+7uzs+P+b",
+	"B0N2Sj6Ge0U+Al4AsizIo4TttlsUoW0RfjR3KsKHK8B8pYxk9Phd0NptpyHXJh/Jq9PXF+D5GufWufQR",
+	"20du7nlSwIuiGrp15KyXUJmCmQvfULsCu6/KCOSj4WRK09GosVvkbiVrU0ceN8X7Jo9c8dZQos9ZIvO0",
+	"sibKjgCFEvKRwB9caWBKZtogQQJJNd0XjgHhKGD7oY2+eFGRZUjGlUaGjgfB1vRIpxzZLaoV7FozYa5r",
+	"XzSIPoeE2hM2kRkE/Xz1lSEzUrCvvrKS8NRQSGhWs7TrZtIXXMEQWErYtZHIuc6gMlQORNTIJ5CypDxJ",
+	"M087pp8xbbiT4dBvZ0wcn50SJ0k6vBogYXJEqL1C5cwNxS6FzEPy4/u4LzquncfdHhp9lb0UuFAQjGNu",
+	"x1vz0j6srnnl9LlhqoIlmqAIqAyxPnbu5ohMaWYYJqJUIs2HU3AlL5ndIDOig97eEbIs7r61nMYIdXal",
+	"cEDw9OMuiXcnUD/3r4Z27UIJXvxzynTOE2VTKXbljAk6490FnWZxX4DsIaTtpBO7hYOF2HaE6QVoM44K",
+	"ITS42UhBlsCfOzFsFR7YXfvt7/6iIL0DaWVfxBYG11DKBojmGLWn2MohTYjNh4ZJWATboUwtMzPikxnR",
+	"1896e2vRbVl3DFw03vU3bnd/t5qNQjpxf6u/BZVWIVBrIjN8f/sIez+5+J4kLMtMt63xciMSi9giAWEt",
+	"8NlkoaCaIoTQdEDUJGTCaMpgmeHrvW3ntLUdfbPrRL3YDqcMaTHjuQmI1zX3oWD54hBs5GZsM6onhzxF",
+	"5hfjIA5PUzadSc1Estj5E1tA7p25fD4CdsqVkW+FRfcNlx4aQoGbK2cRyZGvWiC/eNcetdfuehC1EJpe",
+	"RxYQ3GhPlscjtw0CCQwfPej1jvDwIOHiqi+MBLRjWxsWDjfZSGpF5pOUjNTDE0Y6Rv+wWf+lCuSFnr4w",
+	"d87IH/7aurrRlOQMcgh5uUbkki1AFjzY3zd890mvh+qLoRt90cd4IkEzvEr9LSTPE2Z4m0P+jo+sKccI",
+	"iGMzEHuCraSWSXOE30ig9qYzK1Cjr9hjjHNVkTK8SoXCo5MFqjDiRiIOl08KBmKs93uB4AdU+xJiTUDp",
+	"zXjCbJogRhtvGdk150zTfBFggYdKLsZdKJsa3+11exY+wtCorcOtx91e9zFGUEzAHuConPl7zJpCHYSa",
+	"G/Fqv9cLcIpnuUyYUkC0Mn7FuuQNiE+O8nU97gyX4jTdOtz6I9Pf2q5qls39Xs/WJtEODjageH+xqYx4",
+	"UG+ymdmy62ARqM0DhmlW4wn219SMHxdmdgqaAaXeCo0pW4c/vgez29Rsw+HWK37FBANXvoYc3R/LmSu0",
+	"wziesXKRz3Jpzj8rFKY8sOuZA+xEfbC+vkf4CCBBA/M04q3hPnou80s0sVksEEV0XiiNZ2ppT17bkd24",
+	"J2Zcu7OM8tpu1L2RSwtve3iIpQ+WbernsXITQk69cifeTRhxworX1QIqMaeKDAtupNpcTlsde9vcZsfe",
+	"DXKDhQ6HbuQsN/yI/Kfj168eYv3fhRrtuqVH8akljbE295Rqavg5ofZXZwOyLMvwyyLPYYJPeo/7onQL",
+	"1Hel+eif46B+EWoEfRsGBMfq1ntj3np881sXyJW/E/SKcvROrNvWc8gxuIGkeWiBlbv61VdgJT786qu6",
+	"YXhJ55O5U12AqWIuIxEMqgaMeG5kBcCUxFiROAg9jMGAYkVZy/YFGS76IuZp+GOXvOQZWAoSOR0aERBk",
+	"peM3z49IbC4zCKZcWO8hivdaxn3hPYoRGUo9MbS2MoIu+RNbKAaQuVxYw8GMKmVZJWIa98WMjtkjReIA",
+	"HjcG+F33t63TApD5jIxwuEe1F4wsBt4pifcEks5N00YywofMROSMfijYEcgaVSNdyjBkUeZ9Ab+AA5em",
+	"dkHgGrnOI9SHek1X6BVX+sTBmnlZWUEylOESWyAJu6ysw2puQ7sLFPpDP0XNzZZZEvfXps8hv78mfVxs",
+	"uyYrQc6r2gxQ0Vo1GoCtLdWOpnnGzW2rnOyovA8QTdwwBnNzKgNo4/5f7v8V1Q29+5u3qnct76HvMzpm",
+	"RPG/ruzFVVIvO/J5EU96QRzBfiV6oAGjY7lvw7Sr99sX70GygVd7xcA8xnbrQ6WApb9/QKYHJxdCbhr4",
+	"3lvBYEJmlsgDgPcdtOF9f6C+4jO8snfzK98Jas25LMWXWnDLlzIf8jRlEKRwsP/s5jfeSfmaioUdnfqF",
+	"uLnn3ycYTsqNArsIeLjl1++jrSVjI0AYtEItqDJ/wBV6AAkAKzqA/j3iuktOkUt5l6QUCYtKfmnhh8yt",
+	"SAkXfRHjNwOrDCPaEaRvgQE0Z66lFbIhonAusbWmjSkfwaNvkace9n6tkv+x8Miv/Er1Dm5+443ULyEc",
+	"9R/0Dh47YDhzRI3WAo59Gx8A/huXsvnQt3MXnCWt7uj6O+lMXYmRxFOsE0LoUBY6LF1llbS8EJFLrQUB",
+	"3joUAs8NGI9mMybSHSmyxbqbeAxT+FVeRxjaK7lSI8eiGF+u5K/gSgZHD1xXiSXy7gbay7TqBm5w5Xzl",
+	"JzhuM6nudPEwFl4RajRiHHVEcmZD7zwTrGVNWEGyL7DMPc18cAWUeAFWWZYBy7hAjxmURFwYfo3NDOQo",
+	"PjKKIiO+Ic9HXSQ8eBI0XUBgjBU8uuTctl4bhvXN4hv+k9FeIbXdBcvYQuUdZskOtNUXEF4PUehGs419",
+	"wGFMOtb/01zTbNsSIL881mESz9A8MLCLf2TLIFl/tsuNK8Qj5TwafTFmGjwf6N928VFcR97x4Gb7SPmw",
+	"JJojOwBkAqr6oqyk1yVvHRyBtWlZcorndEK5IAkViI1yxRVLSeeg9yzqC3C+xDbfQw3s29b9cw6pop2D",
+	"/X1bpnWYwz9OTiodg55NmfaOfBRXXyCk5enJt+T1Xo909nv7+9uRtTsEwVsXb89clooh9tvgTozBszOw",
+	"Wxcf4hhwWyFSCDkhfFsGjnKIpMA0ClWiSEKD9rCogQLDr9k2webxIaGaZIwqDa86jAyMSLKHjWZghMR2",
+	"pvR64H4ZjHIKQQzYzFQqTfafkN96l5aLc3dD6QtSNmuOWmZOaXUSbgiJLISGGkvg87FNbdtRcDHAcJvB",
+	"JZvpcBqVsMHgwdjG55gxdFx6kOLXkduibYQLoW4E2NNQ6glWKR8wkaqBYCx1ZRgP7WTMcCt3zSwA2Lus",
+	"A9UW8XQn3FXxxP0UNM/lHC1e0JGZC7xtOjwCE5RpxEbZ4FjsCCKI6jKMW9tkGhdeMJ8sEJZ0zATLKYT8",
+	"xK58pDdowSJvN8kPSDlfOGp8RwkC2NgfZLq4N+HBj8yz/Gqoty9TVxFe9j6PLhGm36HfGvp/JZMVORtn",
+	"VE/CWllYjCuuMUdIh65OMVrn5vh3Jjj1WghOJ1KMMgsHcLDXYkxndJFJmr6T8hXNxwzfe9JmAVQxQ4ji",
+	"1yzl9N0CAaEO9vfbvGy9wEbWeiE014t/VNHwRT1czOYRgNJGneQVlFtxIuOH5D7ExVkmdXeGORkPYUih",
+	"UwbBc+BsgM7U1Ti2Mzt780fCp3TM1ilgZ5nUZ2/++JAqGIxh165Cg0l3yAVFc1YbRyjM8ovS9YvfLHNw",
+	"Am0rIniKHtzo4U75A1ypizKQ1ouBTjYkU5pfstSKyFZDszOHrA4pRhzSFfpiSEWKCgNoEgBBRGZUsIwM",
+	"WSbnoLDg1fRxRRTjQyDypy8EnYKQie37LJQgw8W0br1EN13vi+8/w/VWV+PfXd8qsuHLhf6VXmg8Nw9/",
+	"octg83Y2lWpUe+0Ony6lU5k5FTOiJdnrQXihzX0I8rjshEHVMwpzX9BSO8QgXrzN5S0nDpbcqENx+X1c",
+	"am+gXTldb7tLliIQu+QsSPqCtJR6ZhYVC5e+BB79CXD2EQLDU22DvhVBJ7RZDEsUjiooI30B2pcCxQ1J",
+	"k60GQhRduEhITPzJIOWh0IqntpyGTY1jaV+gBihzJGSEorXbBihYqzim+Yy4Jp0y3832A9GefXHQe7Za",
+	"qwsW5Ven15Vj20ix6z3IAFyJ/mZvrLVhzXwyCZjPXLSrLeT6RQf7ooM9uNc6TBaAVDWX2xqwl5ALtOQx",
+	"a3hK7iuO39VE/1oCEqIlb5D1WjcsG9YS21Qly5AckmKMtXjQtYY2tLKYua0tggopFiBvwn8mWCYbbOQ3",
+	"FJC2RjhamtI6B/v7nihLwba75LjCUBD4NJNizPLlmUGM2LNDkGMh65YrMgI0rb44B+B1FboIIUFayDky",
+	"T9VE4rGOwX144e+fuFeLjn9mwr7SYnfuK9t/IdZfiPWD+1LrKZcP6k5dQla6Z40eIxsq2bI+zKFBAYAI",
+	"ZB2vion9vgbS9CsMWlhCx1qhdFcW/ov2/cvfu++bM7obwxnW2KZbquFRGzW7AgCz+p6R0yCZ3TTbFyvS",
+	"022liyHVyQQT9aQgnbCj7SOfI94XU+qCksDH6pDIzC2dGKGpUxuUdY0zaiUtr8EPaXKJolspq3SmjIJp",
+	"IPabFEdEyL7wBRwtJMF0BrBJXNsUzGru6yFxoIp9ARCkgLXoQEehid8+vxmclJxqSCwAAGgm+gJQNP/+",
+	"r/+l5jAugWa64SIPtMxYTi2SYxyhgNgXzhTx87/t98hvHXA7+e6CvDg7Jhc/7Dw9+Jq8xvCSp71e73mI",
+	"g1Pdx6Pl2AAbl2Jmn/MU1ihycWJ9UYF9ga9dLIGLGzsu0ythaR1GKuY/ODHVSLYKtvbYofhWzhdEXkgL",
+	"oOGRRquoBcRFn/cFNbqvLehpiD0phOYZJAVbpPOwcUjS9cE5R4T2hXsOAxIAZ8Z0bQRy14urF2ojSNDe",
+	"G7Yb9QWgaYCYn0tE9nE+esSetEUuKRTSYUYXEArDGewxx4KcsHAHvWfEmowd6jvaeFyOMkrwIbp7X9jr",
+	"MxBSD7y+sh15XacMYgGsHUF87JP3l5WNhBEqZRM1a5B9dkLVYMR1vN0lB/v7h2ZNK2tuMXzC3QyCfkyf",
+	"laMPaz0Izi0k81MMlVlhYvq+Cq3561JDmuAdP3P4QBNgawtJwgeJykKbi/5FZfmisjy86HSOMgJtRsUp",
+	"QXFaSlBhvccbVJkAxmf3p/LDJ6fjWJL4QN7/wIrj6lRb4IOan9DhNVCNHM95KPpCyPn2YYDe6Ap/eD6m",
+	"0dYPBBnexe5yH87YFx0hdRtmgfKUedhxG/SlYjKozVjEyHGwpEUI1k+tYJQG4Hk4qznFOEIwTNk67cp5",
+	"XIhiYQwoTmzAxQAAigDkSYDFTRXJpM7xPMKkzFIG8ahd4uFxK+1P6TW2PaBjNpjIIrf4MYEAw5VtB+pV",
+	"4QLiTkRYnQRh52BgXXLQO/BVtLE4EcBHmAfBgD+XebNlzbl8T8VLiTjdm7G1Uozfujkjc3WY1ybplMvc",
+	"ZCoxsd3h5h2BORH9U0PFhF6VMEf15vmCD57M47ZiXU5PufVftPBfnJUs74q5qtQey3tVwW9iIffrFj9W",
+	"JD57e/GOrPG+x9GyTaxchxFmlS8xl9gShXiJvZirC3iwfRH/8QV23ZJjGiUC8Mtg9V+dvr7wAFzgFkku",
+	"3fBS1ehYfyPr4wdXxkFf+KwKdJGs1hFKengXh3RIVR9IX2ga6Bfv9Bft4Yv20Ibk/7mgRiZZrKF99+qm",
+	"tjiTrXSCmsCfIZRCmAeGYqqDWBsuIANolf/ite36AQkAdrHO82Dn/wUd4P5dd1kWoP1Wz0oYauFO4Krz",
+	"u4mTIBQxwE5qzh9JbF6jP6l7XXImlUYkH0wRgzwu8zDCBYtFX5T1iNBab9S7+pl3TaPmeB380tnv7W0f",
+	"9QUDwJO8nDqkI0aBiRVvdxiU4RvhAEfQF0EKZjl0dk0TbbP5auN6BBHAGoQiQ0f6wg1UWOEEwzwwZIJr",
+	"M9oeZC7mTKH1OmMjTSBMY9QXgaE/BkD0AA2hrB+lHEB7pcqfmsg5TCHLII+tS46tAaBEK8d63zA/LoyA",
+	"i0pt52B/f43Z9LVDz3kIMQYb/4UEFzuzBpqFOmtCM2dcqe38kd9hwLFAYylQt/s0yK4eH14754rJ75bc",
+	"5RhJHHCq3Z/Msfn3lt31RRT7FQYKwuXx1CgqvW+hyIN1VjZlZlXpy57pexDCIldSVHqYmjDJPl6NzomU",
+	"tAlebUb1pLRswT8PY3E7JmrGEj7iSUDOAhrXwu4WpM6VI1qLlPX+FyHjpej5xc72y9/0t8Ltxu2vslWz",
+	"NneuNAeJAee2JKYEgChlRnTHe/CCoEBkBJgPCAdjdEZw10tNMzRjAFb8h3i7jppzJrPMY3xAvZsSFq4R",
+	"TBKqgcSkgxfysIxoAcALI/rW8SQJzeZ0oYhimnTAPWthxQGpDaoDOXVXSShporejvgCz3oSqwVTmLHbe",
+	"CKwqDzUw7FyhrryFXyCJnNpiBX3xEuJMjExUHZFiTNn1RJAhJ1FLkbBD1yxUJcGyaojDgLAb6EFhPA9j",
+	"IZTtF8yFFOcFvhuM0wAsdNuX8y/5gWKlja4v8oCPcUXmuflduK6D7mzhG4o45voQ4p1Auu+LvIBwEZdf",
+	"BHFNXZQH44jE9vsuTdP4kMRWUMRoCTQO+2iKrgtoilY7Ne2T4a/xNiB/Njrf/Av+p3AQripxCaJSopuY",
+	"oZtT7uqO+odDn58UWMCh0exwDg29gM1d5ni3QU08skypHIq5Ae7REcMSfo1gneYObQ6reK/Iknu9Xq1E",
+	"ZfTLcUzcnJesOcAjRHX8x8C7+kcUe5G1mGML5b4qkWuVsGv85nZ2x7xo7UgKShUtZUhDpT0LnEQ6QSG9",
+	"EnHKUjr0948gHEiwsqieoVBojqgBXD3yuN+BdO34aUmDDwkl+729vpgyKlRQyKdC3CG6sBA2U0YE9dGw",
+	"gMqw0C5IEkdWluiwth+ZY+ih4ZwMwXAigATyW0vYh4JmEdFSkpGh3wjhs42OKJ5l1h0VuZJYNnwxzOGp",
+	"ZkcekpzO+yKlmpZYXHqSy7kgdE4XXXIaFoAhnYPr621X/9DaIQKAqCFbSAvqY7HVwcBzGMYxTAvlyrsh",
+	"eqH5iPGsbp9KqKwjZzEyS+LT0h2iV0aHLAPkP5or4Ol90VmCTlJkLLHKTBB6i4dFz6UrU2broKmJ2TIK",
+	"1QnLqNsjd0l4WjFnBSUbbUGe35CgIktfXDAj2iwVadGSTOmlGaGGZHxFRwyxv7G0n7kaZSlUrAAEkoCy",
+	"RQSmMPxLNkOW5NGe9g8IxIRgBKi1mj0C45wYs3yWc5Q4KLn49nhn/8nXh2FdGIRa9ItvhMAZzRXCsvUF",
+	"E4n0iQykoySZT7hmRM1ogvGfU2aOvZWd7IpOqdYs3z7Cjvri5OL7SkfAx8oKOcrDQuV0jgWEhgvNsPbc",
+	"BZ0ycskWkcM195OKUMr1Dj1XfSrFs/fVVw5GrS+Iv1BffYVFWHSRi3Je+729Gn46jAKEVGfVsqUUMUA7",
+	"3N5zNsvoArrNCxYfESGJYom5FWZFS49xdTrOEq3DOR1ClZrwwaBuSnW6ngBwQUYZH0/0oa01AV1D5JIZ",
+	"sNkDG1huhU3XguZTBqGzDvg+h5lgjLXMCQDVHfSeAV4Yzvuc6XyxczzSLI+3CTeaSgmlNeKCqwmItBw8",
+	"RDsQfm07M2fZEidDUkwHTwxl8a9PZIYBWJds4a+WOTqdGOqHJOoq3u4Lw1Yrxe3Y9Uzm2jzZJT/AKE9Q",
+	"atl5t5ixQ+JfLsH4+sIWdLJlETFi3Ok6S8czRjpmROyyYyhRW6kl0HEMEylN7IqoxKQjZ1hAcvvIJv/H",
+	"dXEqtvHdQbdANofMCaKdg15v29uI4IByRb5793LnKekY+ojAa+bq7OB1nNL8EiK/oAZkuo0xTwd7T3t9",
+	"0bFTn9KF6eNDIT0eZNzfio/Iq5dmi07OX73EmldMpGq7S15xAQkEZqxwIPvC11GELNHfxA5mALcH4ugM",
+	"hXN1uIcZFZfQpgp/6OK88JBjHQHo1+qPuGFdcgLlu5R3RCJgo1ggBbI1E7HGF5QAtFGGHwMoPjk3H60I",
+	"ZD7Uiin6goqXXEBNwwVT5CPoKNBCDB/g/dgVAXQBKu5hx9fKupcrvoTXgSGVLyOrq7yKOrWteVitjObe",
+	"Es1V7//+r/876dVa8MXK/MsQIxgUN7aHafUP0A4uwoDDkghZ9lIyz9pMXebL0gvuBzKiiZZ5Wa2fdPAR",
+	"FMX2trFk4g55G4A1Gqacy3mXnDtJwJX0nIH2SQBesELhAQ2wjCsy99XuQihxousLLqKjkIzqaiPV7dh2",
+	"xlpgI7UegvXquOqbZUU26KbWQ7Bi211yLueW09pqX4Zfe+nHtIRRLWZ9IM4M70HYL3A/eynQ9ioWcAtA",
+	"RMAHK/V+C8VI3AXzUMoSPqUZQq1CATZH14AIC6BS8V73Cdt5HG9jqhMxdK1QVKTK4TRKqEvyhr4xBPVU",
+	"jHw0K8n4JQtrsSLKGFaQ9SsC+CCQ6cUFCDGW00Dxv2q1EkNkF4hLq8wkHyli7rSnrHCy8HUR1oBMC7uk",
+	"qVtCJDXUFY8s1xB/tyWJzTpaObxk76gYGNnHF+GlIqBp1gdhiB0iZUKePDx00Hv2NcpCQek4i8k6s8UU",
+	"W9c6xOPR/DwksuCZgTVGgHGzxiAl4jp2/v6v/wUBbryYjaXRLWFFsiVzqNRrA67MK096PSty4+cQIwf7",
+	"vbCFBI3aYa1QzOqARgAAXgeVyhBOT4odpAnoCjzyIKN0AfLMUGJINCg+6C0J6gs+UtAoVrLJA6c9FJXO",
+	"bYFLa7p02AZQrBQXrtvtxm710bJ3DXM57Is4jvviN1YiwY4D2jmbSC2Bt+/skY5lkMuMcLsvzCGNnO6D",
+	"amGVqjsCHvmbHTk6ATg8sCGR4OZ5Fr3ai3rdJ1Gv29vr7UfR2id6z542P7Ef7XV75on93pPmJx5H+/jE",
+	"wd4ePIFnwP0ewctPetEPO73ewf6KB/YeP8YHHkf7dkFXRAqcF5vnVQVy+5/YYmvZ6GZOBpw0L8wB4UcA",
+	"aKfPQgDUCqPcHav/bDKa4GiVfHbVuO6hgFLbsfk0BjCO0DLXo4y5XxliX8rT91Cbpxyil7/N6KRhIbUk",
+	"llUDcjJ860V761749GAQIkUQehttOfWm2sDyQgD/xmrxKZJIM+cpF6+YGOtJaBYOwfQ+X0LgeXFTHiAY",
+	"KGz6n0sjyn2tl46RGi2tzq1O3hdLlpgIfUr2JcsaPL683TDraAiCW5o0/uWFjsEE4OoQcuW0F9ubj5+S",
+	"I3Aa+TAy1JGrJgijBreJhxlKmTEq4DC0C8GBcIfCwSvnhfh3Ca78JfzmVwgAKZWGqs/CWe6Dyxz6IYp1",
+	"wc9h+mSDC2KDulKr3RCO3jj3MXVmvEMYsRPdbb2HGsw/Gk+9lwW/q3iZc5YwDhmIVYK2qtzoLWSd80I8",
+	"NBSMGdZqWv0lCubXUErKWvXx8N7rFbvv8BgbEFOpmuKsJNXbY6MnuuS8LI/SF/UCb04MdbYo5X1ly3kY",
+	"QfU3izZha77z3Hv2wrI1XXLcGAPh6uZgq2NuZBTQKO0gXKxhpfZLteaBT+2VGaLScBWWfgliIryV/DyM",
+	"FeqL5yw3tKWOR+MozZ9PotCfUGSVDG/VFylLuCFZQZE8CyTIhdlJ6MyXAOmLvW7Qy7wyxJWp2ockdpOK",
+	"j/piP2wikUWGeXjeVVp7/HG9R488woUNdam9cRC+Yf0QZjGmhnJrCeFXPu/btGjtR5AnXmvrSTeMYGyO",
+	"nvFQQpX8dmuosKcB0XYCDwKOK+wtqmPHwOuVLjsebngZGiZn6FoxR2dIk0uwToKpKkCc6Yuvw8WpJL0f",
+	"khiQIRWoT2by34TPBrn01kVE7VGJ0Dvk0+lxatuH0Lc9Q4ZeVeLjfAAcHGRo3YVWyRHxGZ6WlsSrmeW5",
+	"j2z4NfJMN7qVtVPg5y/s85dnnxdViCeM2yzEvUbMIC+1l/ju4TOWGJT0B4hBaI4x7Zv7SmswaY5sqNK4",
+	"p7a7BAIXuSIfMIuRW5omElbno5XaYxZ+yrm8SotQp+Tuci4QaFzmYSaW5xZlsOB2ZOvEgR5dVhwrY2i1",
+	"vzmP6sGzfbEyxIesj/AxK1ol0VwtCRZQAt0utwsbRA6r+ZS5oEfvtXeiPwCyAasFhypPJmQVqJ11Y2By",
+	"vO21oxgLSGJdKIu3u8SdBbvhZSAwxCVoxbIRsAhNLxkIiZ6DlHy/EDcG+1hUe4sOhvVKWZbaGCDTF0DK",
+	"e7A16yCzR+PIu50ITyuRPWGsDXh5wWhh5DzDEy2cjGN+htvZMOEJVWGjlpW7qSEnxqXE2a22L9sFvBMb",
+	"uX8DoB3VL4TbdTP/8vIIHhWeV6oY2mCYL4n3X8xND6/9pqk/jVoGhqcPLiNfT9h0E26+Ri+2He3+5H1y",
+	"n+5ZMx6VoQVILiNCk1wqqJiM983lHdu85AhU2iXFGSBT1jEP35VlpLa4B2i9PC2hNHFciHviGAAiQpYh",
+	"ByukdKRiKwX1ZbLy6vT1RWXqS4zNhS84X041yc2P6H4y3R5SR6iuzRc14VdfArB+S2nttN6bwgCBwS21",
+	"hLBkkVIF1JjIqUjllGB8cccHEe/tPyVDrtV2eZfG/IoJjEtWtvyxYknOtMWSA/dW6dAS2eLIR1lAVAgE",
+	"jIP71YiENvi4LyZUTRCmD8xpmRwb4W21GPbODPWB8ACg7V9IjoK+b3B4wjZFpbpjN0BNIE5J/PoB3b4I",
+	"OQ9PfOBuE4qHJSA0llS0THXFp73rLGUZ06w1fTlnV/LSRmxBS0c2fqqMWevtbZcGaQurYpG4AD6kL4IA",
+	"PKfK5dBuaukVyhlNpOI5DNeRipsT3u8gBHz3nVHtGtj/wfJq4bJ8SQf/VSD4mq24+zXJmUjVQ6LtKgtA",
+	"sQJht5riHXhooLJeX8iREcDt+Q+AEmOVyRmLbejYkCoWRtdDpQIwsKHEcvEcWiq9RLF7Iy4N/uVwzXNz",
+	"LlI5Lzvc720fQU6VzmXmAkoVB2Dan/9tn1w8J505zQUXY8yX+PnfHsOXaJ/bjrDwPaF9cTFh8wnNNUng",
+	"v53Ti7fkm6ff9Hb27XR+YEqPwf8OZqq9nX1VNh6RvZ3HKuqL/Z19FZHznQMVkYOdPVSY9nrXpIPeo22w",
+	"TzCzkBTdiOXCqqpnT6HHDCKJQrjhoxoEPpo8Mu7VlL6IfQeHZEQzhUDBV1xmaPZDACUwbjqM/QBSqi+4",
+	"uJIZmA8h2WUECMMYUjyXS5sD6L62ApfbwsO+iHE/wJwpiiyzuMnYJVflInTJsSZTaUTEqNfrBbPqC3Ow",
+	"j0is80IkmOPt0vhFeCLA+QQ5/R0s9O/SkfoiNgwBziRcK2IZehTIhxDJlbBouTSEnIu++PMJAUaeFjlT",
+	"GJpRKQoRkZyNi8y801Qfolk1hdGs4CPrwirvBz/lc6AiN/XhZ9s61hHW6cy/1hCB+QIi3Az9CI3oEeEC",
+	"LPxXK8NozcG4hwjQV+hQqPVu/Qure9fyHvr+Vs7JlIpF/U5GNVSNKgGNME1UB0R61Sjd780QAPshAsB+",
+	"BQBg/zMDAOB9WmUtZjmHAA+t/Iwjn4Ag0pI0fgEGuH+x6HnOR9pJHDZ/3l1oqLoDPiwrZtSYudmcKud9",
+	"qFrOKHU9ZF120LZNL5VAA+w3rgXmlmwhImlO5+g6K2UdkFIOQ9nBpsSiERZZGSRzMIKn3XyBMhEi41hR",
+	"CNfZRwS51kD0wFvBwKadMVs6HuMOIUc+M7z7vEEYMeIKjHod81tZ0/0LD/zCA/9/zAP5lI7Zrroa/+56",
+	"mlUZYEPuREM5BkMavrCxh6j/XJJeDNMB2h0RpGL3zJVM3ywpcq4XQBWHjOYsPy70ZOvwx/fmHNkO6/fh",
+	"NMikLrBQdVBVLAj56JTKuNruBliIhVANaWsvEU8mbMtdNPTAB8GNhouqoEm7JsuNnoorlivAxbKA5EFh",
+	"7WqaedheiF++3Oifj105HTBqBEWoq4CPbN70chmCVIUwinygQRD34/lmUqIfVXqx7rWlbpoLZUZlXFKJ",
+	"WFKvr+Jb/5A0NIwgyYD0a5EIvWjBc1LiMZOZzHjCWbisDrqwodWzU7RqhY9bs1YDO+BXTDDl4ZTgzynT",
+	"OU/ctLgiqUx8XlwlFQ639f2n/y8AAP//",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,

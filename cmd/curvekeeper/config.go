@@ -27,6 +27,7 @@ type config struct {
 	RateBurst       int
 	TLSCert         string // PEM certificate chain; with TLSKey the service speaks HTTPS only
 	TLSKey          string
+	PprofListen     string // "" (default): no profiling listener
 }
 
 // usageError is a bad command line or setting; it exits with status 2.
@@ -65,6 +66,7 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	fs.StringVar(&cfg.TLSCert, "tls-cert", env("CURVEKEEPER_TLS_CERT", ""), "PEM certificate file; with --tls-key serve HTTPS (CURVEKEEPER_TLS_CERT)")
 	fs.StringVar(&cfg.TLSKey, "tls-key", env("CURVEKEEPER_TLS_KEY", ""), "PEM private key file of --tls-cert (CURVEKEEPER_TLS_KEY)")
 	fs.StringVar(&cfg.LogLevel, "log-level", env("CURVEKEEPER_LOG_LEVEL", "info"), "debug, info, warn or error (CURVEKEEPER_LOG_LEVEL)")
+	fs.StringVar(&cfg.PprofListen, "pprof-listen", env("CURVEKEEPER_PPROF_LISTEN", ""), "loopback host:port for /debug/pprof; empty is off (CURVEKEEPER_PPROF_LISTEN)")
 	cfg.BootstrapToken = getenv("CURVEKEEPER_BOOTSTRAP_TOKEN")
 	// Flags may come before or after positional arguments ("migrate down 1
 	// --database-url …"): the flag package stops at the first positional one,
@@ -111,6 +113,9 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 			return cfg, nil, &usageError{fmt.Sprintf("%s %q: want a positive duration such as 15s", d.name, d.in)}
 		}
 		*d.out = v
+	}
+	if err := checkPprofListen(cfg.PprofListen); err != nil {
+		return cfg, nil, err
 	}
 	switch strings.ToLower(cfg.LogLevel) {
 	case "debug", "info", "warn", "error":

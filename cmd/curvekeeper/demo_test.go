@@ -2,9 +2,15 @@ package main
 
 import (
 	"context"
+	"encoding/json"
 	"io"
+	"log/slog"
+	"net/http"
+	"net/http/httptest"
 	"strings"
 	"testing"
+
+	"curvekeeper/api"
 
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
@@ -59,6 +65,13 @@ func TestDemo(t *testing.T) {
 	if n := count(`SELECT count(*) FROM curves WHERE status = 'approved'`); n == 0 {
 		t.Errorf("no curve was approved by the demo's QA round")
 	}
+	// The loss shows on the trend chart: the Westgard reject rules flag the
+	// lead slope of the ICP-MS against its approved baseline.
+	if rules := demoTrendRejects(t, ctx, db); len(rules) == 0 {
+		t.Errorf("the Pb slope trend of %s has no reject-rule violation", demoICPMS)
+	} else {
+		t.Logf("Pb slope trend: reject rules %v", rules)
+	}
 
 	out.Reset()
 	if err := run(ctx, []string{"demo", "--database-url", url}, func(string) string { return "" }, &out, io.Discard); err != nil {
@@ -70,4 +83,45 @@ func TestDemo(t *testing.T) {
 	if n := count(`SELECT count(*) FROM runs`); n != 30 {
 		t.Errorf("runs after a second load = %d, want 30", n)
 	}
+}
+
+// demoTrendRejects asks GET /v1/trends for the Pb slope of the ICP-MS and
+// returns the reject rules it reports.
+func demoTrendRejects(t *testing.T, ctx context.Context, db *store.DB) []string {
+	t.Helper()
+	srv, err := api.New(api.Config{}, db, slog.New(slog.NewTextHandler(io.Discard, nil)))
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, secret, err := db.CreateToken(ctx, "demo-test-qa", []string{store.ScopeCurvesReview}, "test")
+	if err != nil {
+		t.Fatal(err)
+	}
+	req := httptest.NewRequestWithContext(ctx, http.MethodGet, "/v1/trends?instrument="+demoICPMS+"&analyte=Pb&parameter=slope", nil)
+	req.Header.Set("Authorization", "Bearer "+secret)
+	rec := httptest.NewRecorder()
+	srv.Handler().ServeHTTP(rec, req)
+	if rec.Code != http.StatusOK {
+		t.Fatalf("GET /v1/trends: %d %s", rec.Code, rec.Body.String())
+	}
+	var tr struct {
+		Baseline struct {
+			N int `json:"n"`
+		} `json:"baseline"`
+		Violations []struct {
+			Rule   string `json:"rule"`
+			Reject bool   `json:"reject"`
+		} `json:"violations"`
+	}
+	if err := json.Unmarshal(rec.Body.Bytes(), &tr); err != nil {
+		t.Fatal(err)
+	}
+	var rules []string
+	for _, v := range tr.Violations {
+		if v.Reject {
+			rules = append(rules, v.Rule)
+		}
+	}
+	t.Logf("baseline of %d curves; %d violations", tr.Baseline.N, len(tr.Violations))
+	return rules
 }

@@ -164,6 +164,13 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 		hs.TLSConfig = tlsCfg
 		scheme = "https"
 	}
+	if cfg.PprofListen != "" {
+		closePprof, err := startPprof(cfg.PprofListen, stdout, log)
+		if err != nil {
+			return err
+		}
+		defer closePprof()
+	}
 	errc := make(chan error, 1)
 	go func() {
 		if scheme == "https" {

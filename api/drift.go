@@ -1,0 +1,60 @@
+package api
+
+import (
+	"context"
+	"slices"
+
+	"curvekeeper/calib"
+	"curvekeeper/store"
+)
+
+// driftHistory is how many of the most recent approved curves a new curve's
+// slope is judged against at ingest.
+const driftHistory = 20
+
+// addDriftChecks adds the drift check to each fitted curve of a new run: its
+// slope against the slopes of the same instrument and analyte's most recent
+// approved curves (one indexed query per analyte, before the transaction
+// opens). The check is advisory unless the method makes it mandatory; an
+// advisory check that cannot be computed (too little history) is left out,
+// a mandatory one is reported as not computed and fails the verdict, as
+// every mandatory check does.
+func (s *Server) addDriftChecks(ctx context.Context, m *store.Method, in *store.RunInput, curves []store.CurveInput) error {
+	mandatory := slices.Contains(m.Options().Policy.Mandatory, calib.CheckDrift)
+	for _, c := range curves {
+		r := c.Report
+		slope, ok := slopeOf(r)
+		if !ok {
+			continue
+		}
+		hist, err := s.db.RecentApprovedSlopes(ctx, in.Instrument, c.Analyte, in.AcquiredAt, driftHistory)
+		if err != nil {
+			return err
+		}
+		ch := calib.DriftCheck("slope", hist, slope)
+		if !ch.Computed && !mandatory {
+			continue
+		}
+		ch.Mandatory = mandatory
+		if mandatory && !ch.Computed {
+			ch.Detail += " This check is mandatory under the policy, so not computing it fails the verdict."
+		}
+		r.Checks = append(r.Checks, ch)
+		if mandatory && !ch.Passed {
+			r.Verdict = store.VerdictFail
+		}
+	}
+	return nil
+}
+
+// slopeOf returns b1 of a fitted report.
+func slopeOf(r *calib.Report) (float64, bool) {
+	c := r.Coefficients
+	switch {
+	case r.Model == calib.LinearOrigin && len(c) == 1:
+		return c[0], true
+	case (r.Model == calib.Linear && len(c) == 2) || (r.Model == calib.Quadratic && len(c) == 3):
+		return c[1], true
+	}
+	return 0, false
+}

@@ -1,0 +1,177 @@
+package api
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"net/http"
+	"time"
+
+	"curvekeeper/api/oapi"
+	"curvekeeper/calib"
+	"curvekeeper/store"
+)
+
+// CreateVerification records a verification standard (ICV/CCV) against a
+// curve and moves the release state of the curve's results accordingly.
+func (s *Server) CreateVerification(ctx context.Context, req oapi.CreateVerificationRequestObject) (oapi.CreateVerificationResponseObject, error) {
+	p := mustPrincipal(ctx)
+	b := req.Body
+	v, err := s.db.CreateVerification(ctx, store.VerificationInput{
+		CurveID: req.ID.String(), Kind: string(b.Kind), Level: string(b.Level), Concentration: b.Concentration,
+		Responses: b.Responses, At: b.At, Actor: p.Actor(),
+	})
+	if err != nil {
+		return nil, conflictOnPath(err)
+	}
+	return oapi.CreateVerification201JSONResponse{Verification: verificationOut(v), ResultsChanged: v.ResultsChanged,
+		Cautions: calib.Cautions()}, nil
+}
+
+// conflictOnPath names the curve in the path as the field of a state
+// conflict: the rule is about the curve, not about the body.
+func conflictOnPath(err error) error {
+	var se *store.Error
+	if errors.As(err, &se) && se.Kind == store.KindConflict {
+		return newProblem(http.StatusConflict, se.Message, ProblemField{Pointer: "path:id", Detail: se.Message})
+	}
+	return err
+}
+
+// ListVerifications lists the verification standards of a curve.
+func (s *Server) ListVerifications(ctx context.Context, req oapi.ListVerificationsRequestObject) (oapi.ListVerificationsResponseObject, error) {
+	vs, err := s.db.ListVerifications(ctx, req.ID.String())
+	if err != nil {
+		return nil, err
+	}
+	out := oapi.ListVerifications200JSONResponse{Verifications: make([]oapi.Verification, 0, len(vs)), Cautions: calib.Cautions()}
+	for i := range vs {
+		out.Verifications = append(out.Verifications, verificationOut(&vs[i]))
+	}
+	return out, nil
+}
+
+func verificationOut(v *store.Verification) oapi.Verification {
+	return oapi.Verification{ID: uuidOf(v.ID), CurveID: uuidOf(v.CurveID), Kind: oapi.VerificationKind(v.Kind),
+		Level: v.Level, Concentration: v.Concentration, Responses: nonNil(v.Responses), Found: v.Found,
+		RecoveryPct: v.RecoveryPct, DifferencePct: v.DifferencePct, LimitPct: v.LimitPct, Passed: v.Passed,
+		Detail: v.Detail, Source: calib.VerificationSource, At: v.At, CreatedAt: v.CreatedAt, CreatedBy: v.CreatedBy}
+}
+
+// CreateExclusion refits a curve without some of its readings as a new
+// revision, under the exclusion rules (store.PlanExclusion). The plan and
+// the fit are computed before the transaction opens; the original's readings
+// are immutable, so they stay valid.
+func (s *Server) CreateExclusion(ctx context.Context, req oapi.CreateExclusionRequestObject) (oapi.CreateExclusionResponseObject, error) {
+	p := mustPrincipal(ctx)
+	c, err := s.curve(ctx, req.ID.String())
+	if err != nil {
+		return nil, err
+	}
+	m, err := s.db.GetMethodRevision(ctx, c.Method, c.MethodRevision)
+	if err != nil {
+		return nil, err
+	}
+	pts := make([]store.ExcludedPoint, 0, len(req.Body.Points))
+	for _, x := range req.Body.Points {
+		e := store.ExcludedPoint{Level: string(x.Level)}
+		if x.Replicate != nil {
+			e.Replicate = *x.Replicate
+		}
+		pts = append(pts, e)
+	}
+	rangeReason := ""
+	if req.Body.RangeReason != nil {
+		rangeReason = string(*req.Body.RangeReason)
+	}
+	fitPts, excluded, err := store.PlanExclusion(c.Report.Points, pts, rangeReason, m.Acceptance.MinLevels)
+	if err != nil {
+		return nil, err
+	}
+	opts := m.Options()
+	rep, err := calib.Fit(fitPts, opts)
+	if err != nil {
+		var ie *calib.InputError
+		if !errors.As(err, &ie) {
+			return nil, fmt.Errorf("api: refit curve %s: %w", c.ID, err)
+		}
+		rep = calib.FailedReport(fitPts, opts, err)
+	}
+	revID, err := s.db.CreateRevision(ctx, store.RevisionInput{OriginalID: c.ID, Report: rep, Excluded: excluded,
+		Reason: string(req.Body.Reason), RangeReason: rangeReason, Actor: p.Actor()})
+	if err != nil {
+		return nil, conflictOnPath(err)
+	}
+	rc, err := s.freshCurve(ctx, revID)
+	if err != nil {
+		return nil, err
+	}
+	out, err := s.curveWithExclusion(ctx, rc)
+	if err != nil {
+		return nil, err
+	}
+	return oapi.CreateExclusion201JSONResponse{Body: out, Headers: oapi.CreateExclusion201ResponseHeaders{Location: "/v1/curves/" + revID}}, nil
+}
+
+// curveWithExclusion renders a curve and, for a revision, why it was made.
+func (s *Server) curveWithExclusion(ctx context.Context, c *store.Curve) (oapi.Curve, error) {
+	out := curveOut(c)
+	if c.RevisionOf == "" {
+		return out, nil
+	}
+	e, err := s.db.GetExclusion(ctx, c.ID)
+	if err != nil {
+		return oapi.Curve{}, err
+	}
+	ex := &oapi.Exclusion{RevisionOf: uuidOf(e.RevisionOf), Reason: e.Reason, Actor: e.Actor, At: e.At}
+	if e.RangeReason != "" {
+		rr := e.RangeReason
+		ex.RangeReason = &rr
+	}
+	for _, p := range e.Points {
+		ex.Points = append(ex.Points, struct {
+			Level     string `json:"level"`
+			Replicate int    `json:"replicate"`
+		}{p.Level, p.Replicate})
+	}
+	out.Exclusion = ex
+	return out, nil
+}
+
+// GetCurveInForce returns the curve that applied to an instrument and
+// analyte at a moment.
+func (s *Server) GetCurveInForce(ctx context.Context, req oapi.GetCurveInForceRequestObject) (oapi.GetCurveInForceResponseObject, error) {
+	at := time.Now().UTC()
+	if req.Params.At != nil {
+		at = req.Params.At.UTC()
+	}
+	in, err := s.db.CurveInForce(ctx, req.Instrument, req.Params.Analyte, at)
+	if err != nil {
+		return nil, err
+	}
+	out := oapi.GetCurveInForce200JSONResponse{Curve: summaryOut(&in.Curve, in.Curve.FailedChecks), Basis: in.Basis,
+		At: at, ExpiresAt: in.ExpiresAt, Cautions: calib.Cautions()}
+	if in.LastVerification != nil {
+		v := verificationOut(in.LastVerification)
+		out.LastVerification = &v
+	}
+	return out, nil
+}
+
+// CreateInstrumentPredictions quantifies samples against the curve in force,
+// so that a LIMS need not track curve ids.
+func (s *Server) CreateInstrumentPredictions(ctx context.Context, req oapi.CreateInstrumentPredictionsRequestObject) (oapi.CreateInstrumentPredictionsResponseObject, error) {
+	at := time.Now().UTC()
+	if req.Body.At != nil {
+		at = req.Body.At.UTC()
+	}
+	in, err := s.db.CurveInForce(ctx, req.Instrument, string(req.Body.Analyte), at)
+	if err != nil {
+		return nil, err
+	}
+	out, err := s.predict(ctx, in.Curve.ID, req.Body.Confidence, req.Body.Samples)
+	if err != nil {
+		return nil, err
+	}
+	return oapi.CreateInstrumentPredictions200JSONResponse(out), nil
+}

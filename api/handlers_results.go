@@ -1,0 +1,102 @@
+package api
+
+import (
+	"context"
+	"errors"
+	"net/http"
+
+	"curvekeeper/api/oapi"
+	"curvekeeper/calib"
+	"curvekeeper/store"
+)
+
+// CreateRunSamples stores samples measured after their run and quantifies
+// each against the current curve of its analyte, in one transaction.
+func (s *Server) CreateRunSamples(ctx context.Context, req oapi.CreateRunSamplesRequestObject) (oapi.CreateRunSamplesResponseObject, error) {
+	p := mustPrincipal(ctx)
+	samples := make([]store.Sample, 0, len(req.Body.Samples))
+	for _, sm := range req.Body.Samples {
+		in := store.Sample{ID: string(sm.ID), Analyte: string(sm.Analyte), Responses: sm.Responses, Dilution: 1}
+		if sm.Dilution != nil {
+			in.Dilution = *sm.Dilution
+		}
+		if sm.AcquiredAt != nil {
+			at := sm.AcquiredAt.UTC()
+			in.AcquiredAt = &at
+		}
+		samples = append(samples, in)
+	}
+	results, err := s.db.AddSamples(ctx, req.ID.String(), samples, p.Actor())
+	if err != nil {
+		return nil, err
+	}
+	return oapi.CreateRunSamples201JSONResponse(oapi.RunResults{RunID: req.ID, Results: resultsOut(results), Cautions: calib.Cautions()}), nil
+}
+
+// GetRunResults returns every result of a run's samples.
+func (s *Server) GetRunResults(ctx context.Context, req oapi.GetRunResultsRequestObject) (oapi.GetRunResultsResponseObject, error) {
+	results, err := s.db.RunResults(ctx, req.ID.String())
+	if err != nil {
+		return nil, err
+	}
+	return oapi.GetRunResults200JSONResponse(oapi.RunResults{RunID: req.ID, Results: resultsOut(results), Cautions: calib.Cautions()}), nil
+}
+
+// GetSampleResults returns every result for a LIMS sample id.
+func (s *Server) GetSampleResults(ctx context.Context, req oapi.GetSampleResultsRequestObject) (oapi.GetSampleResultsResponseObject, error) {
+	results, err := s.db.SampleResults(ctx, req.SampleID)
+	if err != nil {
+		var se *store.Error
+		if errors.As(err, &se) && se.Kind == store.KindNotFound {
+			return nil, newProblem(http.StatusNotFound, se.Message, ProblemField{Pointer: "path:sample_id", Detail: se.Message})
+		}
+		return nil, err
+	}
+	return oapi.GetSampleResults200JSONResponse(oapi.SampleResults{SampleID: req.SampleID, Results: resultsOut(results), Cautions: calib.Cautions()}), nil
+}
+
+// ListResultEvents serves the change feed of results, one keyset page at a
+// time.
+func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEventsRequestObject) (oapi.ListResultEventsResponseObject, error) {
+	limit := 0
+	if req.Params.Limit != nil {
+		limit = *req.Params.Limit
+	}
+	page, err := s.db.ResultFeed(ctx, deref(req.Params.Since), limit)
+	if err != nil {
+		var se *store.Error
+		if errors.As(err, &se) && se.Kind == store.KindInvalid && se.Field == "/since" {
+			return nil, newProblem(http.StatusBadRequest, se.Message, ProblemField{Pointer: "query:since", Detail: se.Message})
+		}
+		return nil, err
+	}
+	out := oapi.ListResultEvents200JSONResponse{Events: make([]oapi.ResultEvent, 0, len(page.Events)),
+		NextCursor: page.NextCursor, HasMore: page.More, Cautions: calib.Cautions()}
+	for _, e := range page.Events {
+		oe := oapi.ResultEvent{Seq: e.Seq, At: e.At, Kind: oapi.ResultEventKind(e.Kind), Cause: e.Cause,
+			ReleaseState: oapi.ReleaseState(e.State), Reason: e.Reason, ResultID: e.ResultID, SampleID: e.SampleID,
+			RunID: uuidOf(e.RunID), CurveID: uuidOf(e.CurveID), Analyte: e.Analyte, Unit: e.Unit, Concentration: e.Concentration}
+		if e.Previous != "" {
+			prev := oapi.ReleaseState(e.Previous)
+			oe.PreviousState = &prev
+		}
+		out.Events = append(out.Events, oe)
+	}
+	return out, nil
+}
+
+func resultsOut(rs []store.Result) []oapi.SampleResult {
+	out := make([]oapi.SampleResult, 0, len(rs))
+	for _, r := range rs {
+		out = append(out, oapi.SampleResult{
+			ID: r.ID, SampleID: r.SampleID, RunID: uuidOf(r.RunID), CurveID: uuidOf(r.CurveID), Analyte: r.Analyte,
+			Unit: r.Unit, AcquiredAt: r.AcquiredAt, Responses: nonNil(r.Responses), Readings: len(r.Responses),
+			MeanResponse: r.MeanResponse, Dilution: r.Dilution, Concentration: r.Concentration,
+			StandardError: r.StandardError, IntervalMethod: r.IntervalMethod, Flags: nonNilS(r.Flags),
+			Interval:     oapi.Interval{Low: r.IntervalLow, High: r.IntervalHigh, Level: r.IntervalLevel, Bounded: r.IntervalBounded},
+			ReleaseState: oapi.ReleaseState(r.ReleaseState), ReleaseReason: r.ReleaseReason,
+			StateChangedAt: r.StateChangedAt, CreatedAt: r.CreatedAt, CreatedBy: r.CreatedBy,
+		})
+	}
+	return out
+}

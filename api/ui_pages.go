@@ -1,0 +1,507 @@
+package api
+
+import (
+	"bytes"
+	"embed"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"html/template"
+	"io/fs"
+	"math"
+	"net/http"
+	"net/url"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/labstack/echo/v4"
+
+	"curvekeeper/api/curveplot"
+	"curvekeeper/calib"
+	"curvekeeper/store"
+)
+
+// The QA pages are server-rendered with html/template from embedded files;
+// they need no JavaScript and no front-end build.
+//
+//go:embed ui/*.html ui/*.css
+var uiFiles embed.FS
+
+// uiPages are the page templates, each parsed with the layout.
+var uiPages = func() map[string]*template.Template {
+	funcs := template.FuncMap{
+		"g4":         func(v float64) string { return strconv.FormatFloat(v, 'g', 4, 64) },
+		"g6":         func(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) },
+		"pct":        func(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) },
+		"when":       func(t time.Time) string { return t.UTC().Format("2006-01-02 15:04 UTC") },
+		"day":        func(t time.Time) string { return t.UTC().Format("2006-01-02") },
+		"statusWord": statusWord,
+		"short":      func(id string) string { return id[:min(8, len(id))] },
+		"ruleSource": calib.RuleSource,
+		"join":       strings.Join,
+		"query":      func(v url.Values) template.URL { return template.URL(v.Encode()) },
+	}
+	pages := map[string]*template.Template{}
+	names, err := fs.Glob(uiFiles, "ui/*.html")
+	if err != nil {
+		panic(err)
+	}
+	for _, n := range names {
+		base := strings.TrimSuffix(strings.TrimPrefix(n, "ui/"), ".html")
+		if base == "layout" {
+			continue
+		}
+		pages[base] = template.Must(template.New("layout.html").Funcs(funcs).ParseFS(uiFiles, "ui/layout.html", n))
+	}
+	return pages
+}()
+
+// statusWord names a review status for people.
+func statusWord(s string) string {
+	switch s {
+	case store.StatusPendingReview:
+		return "Pending review"
+	case store.StatusApproved:
+		return "Approved"
+	case store.StatusRejected:
+		return "Rejected"
+	}
+	return s
+}
+
+// pageData is what every page template gets.
+type pageData struct {
+	Title    string
+	Nav      string // "curves" or "trends"
+	Session  *uiSession
+	Cautions []string
+	Form     map[string]string
+	Status   int
+	Message  string
+	Data     any
+}
+
+// render writes page name with data, always with the cautions.
+func (s *Server) render(c echo.Context, status int, name string, d pageData) error {
+	t, ok := uiPages[name]
+	if !ok {
+		return fmt.Errorf("api: no page template %q", name)
+	}
+	d.Session = sessionOf(c)
+	d.Cautions = calib.Cautions()
+	d.Status = status
+	var buf bytes.Buffer
+	if err := t.Execute(&buf, d); err != nil {
+		return fmt.Errorf("api: render %s: %w", name, err)
+	}
+	return c.HTMLBlob(status, buf.Bytes())
+}
+
+// uiError renders an error page with the status and a message for people.
+func (s *Server) uiError(c echo.Context, status int, msg string) error {
+	return s.render(c, status, "error", pageData{Title: http.StatusText(status), Message: msg})
+}
+
+// uiFail renders errors of the QA pages as pages, not problems: a
+// store error by its kind, anything else as an internal error whose cause
+// goes to the log only.
+func (s *Server) uiFail(c echo.Context, err error) error {
+	status := StatusOf(err)
+	if status == 0 {
+		status = http.StatusInternalServerError
+	}
+	msg := "Something went wrong on our side; the error is logged with request id " + requestID(c) + "."
+	var se *store.Error
+	switch {
+	case status == http.StatusServiceUnavailable:
+		msg = "The database cannot be reached just now. Try again in a moment."
+	case status < 500 && errors.As(err, &se):
+		msg = se.Message
+	case status == http.StatusNotFound:
+		msg = "There is no such page."
+	case status < 500:
+		msg = "The request was refused: " + http.StatusText(status) + "."
+	case status >= 500:
+		s.log.Error("ui request failed", "request_id", requestID(c), "error", err.Error())
+	}
+	return s.uiError(c, status, msg)
+}
+
+// uiStatic serves the style sheet.
+func (s *Server) uiStyle(c echo.Context) error {
+	b, err := uiFiles.ReadFile("ui/style.css")
+	if err != nil {
+		return err
+	}
+	c.Response().Header().Set("Cache-Control", "public, max-age=3600")
+	return c.Blob(http.StatusOK, "text/css; charset=utf-8", b)
+}
+
+// registerUI adds the QA pages under /ui/.
+func (s *Server) registerUI(e *echo.Echo) {
+	read := s.requireSession(ScopeResultsRead, ScopeCurvesReview, ScopeAdmin)
+	review := s.requireSession(ScopeCurvesReview, ScopeAdmin)
+	g := e.Group("/ui", s.uiSessionMiddleware)
+	g.GET("", func(c echo.Context) error { return c.Redirect(http.StatusSeeOther, "/ui/curves") })
+	g.GET("/", func(c echo.Context) error { return c.Redirect(http.StatusSeeOther, "/ui/curves") })
+	g.GET("/style.css", s.uiStyle)
+	g.GET("/sign-in", s.signInPage)
+	g.POST("/sign-in", s.signIn)
+	g.POST("/sign-out", s.signOut, s.requireSession(), s.requireCSRF)
+	g.GET("/curves", s.uiCurveList, read)
+	g.GET("/curves/:id", s.uiCurvePage, read)
+	g.GET("/curves/:id/plot.svg", s.uiCurvePlot, read)
+	g.POST("/curves/:id/review", s.uiReview, review, s.requireCSRF)
+	g.GET("/trends", s.uiTrendPage, read)
+	g.GET("/trends/plot.svg", s.uiTrendPlot, read)
+}
+
+// listView is the curve list page.
+type listView struct {
+	Filter     url.Values
+	Curves     []store.CurveSummary
+	NextCursor string
+	First      bool
+	Problem    string
+	Statuses   []string
+}
+
+// parseDay reads a date input (YYYY-MM-DD, UTC); end adds a day, so that a
+// "to" date includes that whole day.
+func parseDay(v string, end bool) (time.Time, error) {
+	if v == "" {
+		return time.Time{}, nil
+	}
+	t, err := time.Parse("2006-01-02", v)
+	if err != nil {
+		return time.Time{}, fmt.Errorf("%q is not a date (YYYY-MM-DD)", v)
+	}
+	if end {
+		t = t.AddDate(0, 0, 1)
+	}
+	return t, nil
+}
+
+func (s *Server) uiCurveList(c echo.Context) error {
+	q := c.QueryParams()
+	v := listView{Filter: url.Values{}, First: q.Get("cursor") == "",
+		Statuses: []string{store.StatusPendingReview, store.StatusApproved, store.StatusRejected}}
+	for _, k := range []string{"instrument", "analyte", "status", "verdict", "from", "to", "limit"} {
+		if x := strings.TrimSpace(q.Get(k)); x != "" {
+			v.Filter.Set(k, x)
+		}
+	}
+	f := store.CurveFilter{Instrument: v.Filter.Get("instrument"), Analyte: v.Filter.Get("analyte"),
+		Status: v.Filter.Get("status"), Verdict: v.Filter.Get("verdict"), Cursor: q.Get("cursor"), Limit: 25}
+	if l := v.Filter.Get("limit"); l != "" {
+		n, err := strconv.Atoi(l)
+		if err != nil || n < 1 || n > 100 {
+			v.Problem = "Page size must be a whole number from 1 to 100."
+		}
+		f.Limit = n
+	}
+	var err error
+	if f.From, err = parseDay(v.Filter.Get("from"), false); err != nil {
+		v.Problem = "From: " + err.Error()
+	}
+	if f.To, err = parseDay(v.Filter.Get("to"), true); err != nil {
+		v.Problem = "To: " + err.Error()
+	}
+	status := http.StatusOK
+	if v.Problem == "" {
+		page, err := s.db.ListCurves(c.Request().Context(), f)
+		switch {
+		case store.KindOf(err) == store.KindInvalid:
+			var se *store.Error
+			errors.As(err, &se)
+			v.Problem = se.Message
+		case err != nil:
+			return s.uiFail(c, err)
+		default:
+			v.Curves, v.NextCursor = page.Curves, page.NextCursor
+		}
+	}
+	if v.Problem != "" {
+		status = http.StatusBadRequest
+	}
+	return s.render(c, status, "curves", pageData{Title: "Curves", Nav: "curves", Data: v})
+}
+
+// curveView is the curve page.
+type curveView struct {
+	Curve     *store.Curve
+	Alt       string
+	Equation  string
+	Audit     []auditRow
+	Checks    []checkRow
+	Failed    []checkRow
+	TrendLink template.URL
+	Done      string
+	Problem   string
+	Reason    string
+}
+
+type auditRow struct {
+	At             time.Time
+	Who, TokenID   string // the actor: a token's name and id, or the raw actor
+	Action, Entity string
+	Pairs          []auditPair
+}
+
+type auditPair struct{ K, V string }
+
+// auditRowOf renders an audit event for people: the actor's token name, the
+// entity, and the recorded facts one per line, keys sorted.
+func auditRowOf(e store.AuditEvent) auditRow {
+	r := auditRow{At: e.At, Who: e.Actor, Action: e.Action, Entity: e.EntityType + " " + e.EntityID}
+	if parts := strings.SplitN(e.Actor, ":", 3); len(parts) == 3 && parts[0] == "token" {
+		r.Who, r.TokenID = parts[1], parts[2]
+	}
+	var facts map[string]any
+	if json.Unmarshal(e.Detail, &facts) == nil {
+		keys := make([]string, 0, len(facts))
+		for k := range facts {
+			keys = append(keys, k)
+		}
+		sort.Strings(keys)
+		for _, k := range keys {
+			var v string
+			switch x := facts[k].(type) {
+			case string:
+				v = x
+			default:
+				b, _ := json.Marshal(x)
+				v = string(b)
+			}
+			r.Pairs = append(r.Pairs, auditPair{K: k, V: v})
+		}
+	}
+	return r
+}
+
+type checkRow struct {
+	calib.Check
+	Result string // "Pass", "Fail" or "Not computed"
+}
+
+func checkRows(r *calib.Report) []checkRow {
+	rows := make([]checkRow, 0, len(r.Checks))
+	for _, ch := range r.Checks {
+		res := "Pass"
+		switch {
+		case !ch.Computed:
+			res = "Not computed"
+		case !ch.Passed:
+			res = "Fail"
+		}
+		rows = append(rows, checkRow{Check: ch, Result: res})
+	}
+	return rows
+}
+
+func (s *Server) curveView(c echo.Context, id string) (*curveView, error) {
+	ctx := c.Request().Context()
+	cv, err := s.freshCurve(ctx, id)
+	if err != nil {
+		return nil, err
+	}
+	v := &curveView{Curve: cv, Alt: curveplot.AltText(cv.Report, cv.Analyte, cv.Unit), Checks: checkRows(cv.Report)}
+	for _, ch := range v.Checks {
+		if ch.Result != "Pass" {
+			v.Failed = append(v.Failed, ch)
+		}
+	}
+	v.Equation = equationText(cv.Report)
+	tq := url.Values{"instrument": {cv.Instrument}, "analyte": {cv.Analyte}, "parameter": {store.ParamSlope}}
+	v.TrendLink = template.URL("/ui/trends?" + tq.Encode())
+	if sessionOf(c).CanReview() {
+		events, err := s.db.ListAudit(ctx, id)
+		if err != nil {
+			return nil, err
+		}
+		for _, e := range events {
+			v.Audit = append(v.Audit, auditRowOf(e))
+		}
+	}
+	return v, nil
+}
+
+// equationText writes the fitted equation with 6 significant digits.
+func equationText(r *calib.Report) string {
+	b, ok := slopeOf(r)
+	if !ok {
+		return "no fit"
+	}
+	g := func(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) }
+	switch r.Model {
+	case calib.LinearOrigin:
+		return "y = " + g(b) + "·x"
+	case calib.Quadratic:
+		return "y = " + g(r.Coefficients[0]) + " + " + g(b) + "·x + " + g(r.Coefficients[2]) + "·x²"
+	}
+	return "y = " + g(r.Coefficients[0]) + " + " + g(b) + "·x"
+}
+
+func (s *Server) uiCurvePage(c echo.Context) error {
+	v, err := s.curveView(c, c.Param("id"))
+	if err != nil {
+		return s.uiFail(c, err)
+	}
+	v.Done = map[string]string{"approve": "approved", "reject": "rejected"}[c.QueryParam("reviewed")]
+	return s.render(c, http.StatusOK, "curve", pageData{Title: v.Curve.Instrument + " · " + v.Curve.Analyte, Nav: "curves", Data: v})
+}
+
+func (s *Server) uiCurvePlot(c echo.Context) error {
+	b, err := s.plot(c.Request().Context(), c.Param("id"), curveplot.FormatSVG)
+	if err != nil {
+		return s.uiFail(c, err)
+	}
+	return c.Blob(http.StatusOK, "image/svg+xml", b)
+}
+
+// uiReview approves or rejects a curve from its page; the reason is required.
+func (s *Server) uiReview(c echo.Context) error {
+	id := c.Param("id")
+	decision := c.FormValue("decision")
+	reason := strings.TrimSpace(c.FormValue("reason"))
+	problem := ""
+	switch {
+	case decision != store.DecisionApprove && decision != store.DecisionReject:
+		problem = "Choose approve or reject."
+	case reason == "":
+		problem = "Give the reason for your decision; it is recorded in the audit trail."
+	case len(reason) > 2000:
+		problem = "The reason is longer than 2,000 characters."
+	}
+	if problem == "" {
+		_, err := s.db.ReviewCurve(c.Request().Context(), id, decision, reason, sessionOf(c).Principal.Actor())
+		s.curves.drop(id)
+		if err == nil {
+			return c.Redirect(http.StatusSeeOther, "/ui/curves/"+url.PathEscape(id)+"?reviewed="+decision)
+		}
+		var se *store.Error
+		if !errors.As(err, &se) || se.Kind == store.KindInternal || se.Kind == store.KindUnavailable || se.Kind == store.KindNotFound {
+			return s.uiFail(c, err)
+		}
+		problem = se.Message
+	}
+	v, err := s.curveView(c, id)
+	if err != nil {
+		return s.uiFail(c, err)
+	}
+	v.Problem, v.Reason = problem, reason
+	status := http.StatusUnprocessableEntity
+	if v.Curve.Status != store.StatusPendingReview {
+		status = http.StatusConflict
+	}
+	return s.render(c, status, "curve", pageData{Title: v.Curve.Instrument + " · " + v.Curve.Analyte, Nav: "curves", Data: v})
+}
+
+// trendView is the trend page.
+type trendView struct {
+	Query    url.Values
+	Subjects []store.TrendSubject
+	Trend    *trendResult
+	Params   []string
+	Alt      string
+	PlotURL  template.URL
+	Rows     []trendRow
+	Problem  string
+}
+
+type trendRow struct {
+	trendPoint
+	Z    float64
+	HasZ bool
+}
+
+// trendQueryFrom reads the trend page's query parameters.
+func trendQueryFrom(q url.Values) (trendQuery, url.Values, string) {
+	keep := url.Values{}
+	for _, k := range []string{"instrument", "analyte", "parameter", "from", "to", "baseline"} {
+		if x := strings.TrimSpace(q.Get(k)); x != "" {
+			keep.Set(k, x)
+		}
+	}
+	tq := trendQuery{Instrument: keep.Get("instrument"), Analyte: keep.Get("analyte"), Parameter: keep.Get("parameter")}
+	if tq.Parameter == "" {
+		tq.Parameter = store.ParamSlope
+	}
+	valid := false
+	for _, p := range store.TrendParameters {
+		valid = valid || p == tq.Parameter
+	}
+	if !valid {
+		return tq, keep, "Unknown parameter " + strconv.Quote(tq.Parameter) + "."
+	}
+	var err error
+	if tq.From, err = parseDay(keep.Get("from"), false); err != nil {
+		return tq, keep, "From: " + err.Error()
+	}
+	if tq.To, err = parseDay(keep.Get("to"), true); err != nil {
+		return tq, keep, "To: " + err.Error()
+	}
+	if b := keep.Get("baseline"); b != "" {
+		n, err := strconv.Atoi(b)
+		if err != nil || n < 2 || n > 200 {
+			return tq, keep, "Baseline must be a whole number of curves from 2 to 200."
+		}
+		tq.BaselineN = n
+	}
+	return tq, keep, ""
+}
+
+func (s *Server) uiTrendPage(c echo.Context) error {
+	ctx := c.Request().Context()
+	tq, keep, problem := trendQueryFrom(c.QueryParams())
+	v := trendView{Query: keep, Params: store.TrendParameters, Problem: problem}
+	subjects, err := s.db.TrendSubjects(ctx)
+	if err != nil {
+		return s.uiFail(c, err)
+	}
+	v.Subjects = subjects
+	status := http.StatusOK
+	if problem != "" {
+		status = http.StatusBadRequest
+	} else if tq.Instrument != "" && tq.Analyte != "" {
+		t, err := s.computeTrend(ctx, tq)
+		if err != nil {
+			return s.uiFail(c, err)
+		}
+		v.Trend, v.Alt = t, trendAltText(t)
+		v.PlotURL = template.URL("/ui/trends/plot.svg?" + keep.Encode())
+		for _, p := range t.Points {
+			r := trendRow{trendPoint: p}
+			if t.HasBaseline && p.HasValue {
+				r.Z, r.HasZ = t.Baseline.Z(p.Value), true
+				if math.IsNaN(r.Z) || math.IsInf(r.Z, 0) {
+					r.HasZ = false
+				}
+			}
+			v.Rows = append(v.Rows, r)
+		}
+	}
+	title := "Trends"
+	if v.Trend != nil {
+		title = "Trend · " + tq.Instrument + " · " + tq.Analyte
+	}
+	return s.render(c, status, "trend", pageData{Title: title, Nav: "trends", Data: v})
+}
+
+func (s *Server) uiTrendPlot(c echo.Context) error {
+	tq, _, problem := trendQueryFrom(c.QueryParams())
+	if problem != "" || tq.Instrument == "" || tq.Analyte == "" {
+		return s.uiError(c, http.StatusBadRequest, "Name an instrument and an analyte. "+problem)
+	}
+	t, err := s.computeTrend(c.Request().Context(), tq)
+	if err != nil {
+		return s.uiFail(c, err)
+	}
+	b, err := trendChart(t)
+	if err != nil {
+		return s.uiFail(c, err)
+	}
+	return c.Blob(http.StatusOK, "image/svg+xml", b)
+}

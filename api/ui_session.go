@@ -1,0 +1,210 @@
+package api
+
+import (
+	"context"
+	"crypto/hmac"
+	"crypto/rand"
+	"crypto/sha256"
+	"crypto/subtle"
+	"encoding/base64"
+	"net/http"
+	"net/url"
+	"slices"
+	"strings"
+	"time"
+
+	"github.com/labstack/echo/v4"
+
+	"curvekeeper/store"
+)
+
+// The QA pages' cookies. The session cookie holds the session secret (the
+// database keeps only its SHA-256); the sign-in cookie holds the random value
+// the sign-in form must echo, since there is no session yet to bind the form
+// to.
+const (
+	uiSessionCookie = "ck_session"
+	uiSignInCookie  = "ck_signin"
+	uiSessionTTL    = 8 * time.Hour
+	uiCSRFField     = "csrf_token"
+)
+
+// uiSession is the signed-in user of a QA page request.
+type uiSession struct {
+	Principal Principal
+	secret    string // the cookie's session secret
+	CSRF      string // the synchronizer token of this session's forms
+}
+
+// Has reports whether the session's token holds any of scopes.
+func (u *uiSession) Has(scopes ...string) bool {
+	return u != nil && slices.ContainsFunc(scopes, u.Principal.Has)
+}
+
+// CanRead: the scopes of GET /v1/curves and /v1/trends.
+func (u *uiSession) CanRead() bool {
+	return u.Has(ScopeResultsRead, ScopeCurvesReview, ScopeAdmin)
+}
+
+// CanReview: the scopes of POST /v1/curves/{id}/review and the audit trail.
+func (u *uiSession) CanReview() bool { return u.Has(ScopeCurvesReview, ScopeAdmin) }
+
+// csrfFor derives the synchronizer token of a session from its secret:
+// HMAC-SHA256(secret, label). It is bound to the session (another session,
+// or none, gives another token), needs no storage, and cannot be computed by
+// a page that does not know the cookie, which is HttpOnly and SameSite=Strict.
+func csrfFor(secret string) string {
+	m := hmac.New(sha256.New, []byte(secret))
+	m.Write([]byte("curvekeeper ui csrf v1"))
+	return base64.RawURLEncoding.EncodeToString(m.Sum(nil))
+}
+
+// sameToken compares two tokens in constant time.
+func sameToken(a, b string) bool {
+	return a != "" && subtle.ConstantTimeCompare([]byte(a), []byte(b)) == 1
+}
+
+// setCookie sets a cookie of the QA pages: HttpOnly, SameSite=Strict, path
+// /ui/, Secure when the request came over TLS. maxAge < 0 deletes it.
+func setCookie(c echo.Context, name, value string, maxAge int) {
+	c.SetCookie(&http.Cookie{
+		Name: name, Value: value, Path: "/ui/", MaxAge: maxAge,
+		HttpOnly: true, SameSite: http.SameSiteStrictMode, Secure: c.Request().TLS != nil,
+	})
+}
+
+// randomToken returns 32 random bytes, base64url.
+func randomToken() (string, error) {
+	var b [32]byte
+	if _, err := rand.Read(b[:]); err != nil {
+		return "", err
+	}
+	return base64.RawURLEncoding.EncodeToString(b[:]), nil
+}
+
+// sessionOf returns the session the middleware found, nil when signed out.
+func sessionOf(c echo.Context) *uiSession {
+	u, _ := c.Get("ui_session").(*uiSession)
+	return u
+}
+
+// uiSessionMiddleware reads the session cookie and, when it names a live
+// session, puts the session (with its token's current scopes) on the
+// request. It never refuses: pages decide what a visitor without a session
+// sees. Every page also gets headers that keep it out of caches and frames
+// and allow no script at all.
+func (s *Server) uiSessionMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) error {
+		h := c.Response().Header()
+		h.Set("Content-Security-Policy", "default-src 'none'; style-src 'self'; img-src 'self'; form-action 'self'; frame-ancestors 'none'; base-uri 'none'")
+		h.Set("X-Content-Type-Options", "nosniff")
+		h.Set("Referrer-Policy", "same-origin")
+		h.Set("Cache-Control", "no-store")
+		if ck, err := c.Cookie(uiSessionCookie); err == nil && ck.Value != "" && len(ck.Value) <= 256 {
+			sess, err := s.db.LookupSession(c.Request().Context(), ck.Value)
+			switch {
+			case err == nil:
+				u := &uiSession{secret: ck.Value, CSRF: csrfFor(ck.Value),
+					Principal: Principal{TokenID: sess.Token.ID, Name: sess.Token.Name, Scopes: sess.Token.Scopes}}
+				c.Set("ui_session", u)
+				req := c.Request()
+				c.SetRequest(req.WithContext(context.WithValue(req.Context(), principalKey{}, u.Principal)))
+			case store.KindOf(err) == store.KindNotFound:
+				setCookie(c, uiSessionCookie, "", -1) // stale: forget it
+			default:
+				return err
+			}
+		}
+		return next(c)
+	}
+}
+
+// requireSession sends a visitor without a session to the sign-in page
+// (GET) or refuses the request with 401 (anything else), and refuses a
+// session without one of scopes with 403.
+func (s *Server) requireSession(scopes ...string) echo.MiddlewareFunc {
+	return func(next echo.HandlerFunc) echo.HandlerFunc {
+		return func(c echo.Context) error {
+			u := sessionOf(c)
+			if u == nil {
+				if c.Request().Method == http.MethodGet {
+					return c.Redirect(http.StatusSeeOther, "/ui/sign-in?next="+url.QueryEscape(c.Request().URL.RequestURI()))
+				}
+				return s.uiError(c, http.StatusUnauthorized, "You are not signed in, or your session has ended. Sign in again and repeat the action.")
+			}
+			if len(scopes) > 0 && !u.Has(scopes...) {
+				return s.uiError(c, http.StatusForbidden, "Your token does not hold any of the scopes this page needs: "+strings.Join(scopes, ", ")+".")
+			}
+			return next(c)
+		}
+	}
+}
+
+// requireCSRF refuses a form whose synchronizer token is not the session's.
+func (s *Server) requireCSRF(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) error {
+		u := sessionOf(c)
+		if u == nil || !sameToken(c.FormValue(uiCSRFField), u.CSRF) {
+			return s.uiError(c, http.StatusForbidden, "The form's security token is missing or does not belong to your session. Reload the page and try again.")
+		}
+		return next(c)
+	}
+}
+
+// safeNext returns next when it is a path of the QA pages, else the list.
+func safeNext(next string) string {
+	if strings.HasPrefix(next, "/ui/") && !strings.HasPrefix(next, "//") && !strings.ContainsAny(next, "\\\r\n") {
+		return next
+	}
+	return "/ui/curves"
+}
+
+// signInPage shows the sign-in form, with a fresh form token in a cookie.
+func (s *Server) signInPage(c echo.Context) error {
+	if sessionOf(c) != nil {
+		return c.Redirect(http.StatusSeeOther, safeNext(c.QueryParam("next")))
+	}
+	return s.renderSignIn(c, http.StatusOK, "")
+}
+
+func (s *Server) renderSignIn(c echo.Context, status int, problem string) error {
+	tok, err := randomToken()
+	if err != nil {
+		return err
+	}
+	setCookie(c, uiSignInCookie, tok, 600)
+	return s.render(c, status, "signin", pageData{Title: "Sign in", Form: map[string]string{
+		"csrf": tok, "next": safeNext(c.QueryParam("next")) + "", "problem": problem,
+	}})
+}
+
+// signIn exchanges an API token for a session cookie.
+func (s *Server) signIn(c echo.Context) error {
+	ck, err := c.Cookie(uiSignInCookie)
+	if err != nil || !sameToken(c.FormValue(uiCSRFField), ck.Value) {
+		return s.uiError(c, http.StatusForbidden, "The sign-in form's security token is missing or expired. Open the sign-in page again.")
+	}
+	token := strings.TrimSpace(c.FormValue("token"))
+	if _, ok := bearer("Bearer " + token); !ok {
+		return s.renderSignIn(c, http.StatusUnauthorized, "Enter an API token.")
+	}
+	secret, _, err := s.db.CreateSession(c.Request().Context(), token, uiSessionTTL)
+	if err != nil {
+		if store.KindOf(err) == store.KindNotFound {
+			return s.renderSignIn(c, http.StatusUnauthorized, "That token is unknown or revoked.")
+		}
+		return err
+	}
+	setCookie(c, uiSignInCookie, "", -1)
+	setCookie(c, uiSessionCookie, secret, int(uiSessionTTL/time.Second))
+	return c.Redirect(http.StatusSeeOther, safeNext(c.FormValue("next")))
+}
+
+// signOut ends the session.
+func (s *Server) signOut(c echo.Context) error {
+	if err := s.db.DeleteSession(c.Request().Context(), sessionOf(c).secret); err != nil {
+		return err
+	}
+	setCookie(c, uiSessionCookie, "", -1)
+	return c.Redirect(http.StatusSeeOther, "/ui/sign-in")
+}

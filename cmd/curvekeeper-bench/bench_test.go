@@ -1,0 +1,135 @@
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"net/http"
+	"net/http/httptest"
+	"strings"
+	"sync/atomic"
+	"testing"
+	"time"
+
+	"curvekeeper/calib"
+	"curvekeeper/store"
+	"curvekeeper/store/dbtest"
+)
+
+func TestMain(m *testing.M) { dbtest.Main(m) }
+
+// TestLoadIsBoundedAndCounts: the load generator stops at Max requests,
+// counts failures apart from successes and keeps one latency per success.
+func TestLoadIsBoundedAndCounts(t *testing.T) {
+	var hits atomic.Int64
+	ts := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		if hits.Add(1)%5 == 0 {
+			http.Error(w, "no", http.StatusTeapot)
+			return
+		}
+		w.Write([]byte(`{}`))
+	}))
+	defer ts.Close()
+	cl := newClient(4)
+	got := load{Workers: 4, Max: 50, Duration: 30 * time.Second, Do: func(ctx context.Context, _ int) error {
+		_, err := call(ctx, cl, http.MethodGet, ts.URL, "", nil, http.StatusOK)
+		return err
+	}}.run(context.Background())
+	if got.N+got.Errors != 50 || hits.Load() != 50 {
+		t.Errorf("successes %d + failures %d, server saw %d; want 50 requests in all", got.N, got.Errors, hits.Load())
+	}
+	if got.Errors != 10 || len(got.Lat) != got.N {
+		t.Errorf("failures = %d (want 10), latencies = %d (want %d)", got.Errors, len(got.Lat), got.N)
+	}
+	if got.FirstErr == nil || !strings.Contains(got.FirstErr.Error(), "418") {
+		t.Errorf("first error = %v, want the 418", got.FirstErr)
+	}
+}
+
+func TestPercentileNearestRank(t *testing.T) {
+	var r result
+	for i := 1; i <= 100; i++ {
+		r.Lat = append(r.Lat, time.Duration(i)*time.Millisecond)
+	}
+	tests := []struct {
+		q    float64
+		want float64
+	}{{0.5, 50}, {0.9, 90}, {0.99, 99}, {1, 100}, {0.001, 1}}
+	for _, tc := range tests {
+		if got := r.percentile(tc.q); got != tc.want {
+			t.Errorf("percentile(%g) = %g, want %g", tc.q, got, tc.want)
+		}
+	}
+}
+
+func TestLineFormat(t *testing.T) {
+	tests := []struct {
+		name string
+		l    line
+		want string
+	}{
+		{"ratio target met", line{Scenario: "ingest", Service: 300, Baseline: 400, Unit: "runs/s", Target: target{"ratio", ">=", 0.5}},
+			"scenario=ingest service=300.0 baseline=400.0 ratio=0.7500 target=ratio>=0.5 unit=runs/s met=yes"},
+		{"absolute target missed", line{Scenario: "predict_p99", Service: 12.5, Baseline: 3, Unit: "ms", Target: target{"service", "<=", 10},
+			Extra: []string{kv("note", "a b")}},
+			`scenario=predict_p99 service=12.50 baseline=3.000 ratio=4.167 target=service<=10 unit=ms met=no note="a b"`},
+		{"no baseline", line{Scenario: "x", Service: 1, Unit: "ms", Target: target{"ratio", "<=", 1.5}},
+			"scenario=x service=1.000 baseline=0 ratio=NaN target=ratio<=1.5 unit=ms met=no"},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			if got := tc.l.String(); got != tc.want {
+				t.Errorf("got  %s\nwant %s", got, tc.want)
+			}
+		})
+	}
+}
+
+// TestBulkLoadServesHistory: the bulk load writes curves the store lists
+// through the cursor and whose report decodes, with tiny counts.
+func TestBulkLoadServesHistory(t *testing.T) {
+	url := dbtest.NewURL(t)
+	ctx := context.Background()
+	db, err := store.Open(ctx, url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	_, _, err = db.CreateMethod(ctx, store.MethodInput{Name: benchMethod, Model: calib.Linear, Weighting: calib.WeightInvX2,
+		Confidence: 0.95, Analytes: []store.Analyte{{Name: benchAnalyte, Unit: "mg/L"}}, Acceptance: calib.DefaultPolicy()}, "test")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := bulkLoadCurves(ctx, url, 400, 120); err != nil {
+		t.Fatal(err)
+	}
+	f := store.CurveFilter{Instrument: historyInstrument, Analyte: benchAnalyte, Limit: 50}
+	seen := 0
+	var first string
+	for page := 0; page < 5; page++ {
+		p, err := db.ListCurves(ctx, f)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if page == 0 {
+			first = p.Curves[0].ID
+		}
+		seen += len(p.Curves)
+		if p.NextCursor == "" {
+			break
+		}
+		f.Cursor = p.NextCursor
+	}
+	if seen != 120 {
+		t.Errorf("curves listed in the pair = %d, want 120", seen)
+	}
+	c, err := db.GetCurve(ctx, first)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(c.Report.Coefficients) != 2 || c.Report.Verdict != "pass" {
+		t.Errorf("report = %+v, want a passing linear fit", c.Report)
+	}
+	if _, err := json.Marshal(runRequest(3)); err != nil {
+		t.Fatal(err)
+	}
+}

@@ -1,0 +1,60 @@
+package store
+
+import (
+	"math"
+	"time"
+
+	"curvekeeper/calib"
+)
+
+// QCPolicy holds a method's settings for the QC loop: how verification
+// standards are judged and which curve is in force. The defaults are
+// defaults only; the laboratory's method, accreditation and SOP come first.
+type QCPolicy struct {
+	// VerificationTolerancePct is the |%D| an ICV/CCV may show against its
+	// nominal value; 0 means calib.DefaultVerificationTolerancePct (±20 %,
+	// after US EPA SW-846 Method 8000D).
+	VerificationTolerancePct float64 `json:"verification_tolerance_pct,omitempty"`
+	// PendingCurvesInForce lets a passing curve that awaits review be the
+	// curve in force (default false: only approved curves are).
+	PendingCurvesInForce bool `json:"pending_curves_in_force,omitempty"`
+	// MaxCurveAgeHours, when > 0, is how long after its acquisition a curve
+	// stays in force; 0 means no limit.
+	MaxCurveAgeHours float64 `json:"max_curve_age_hours,omitempty"`
+}
+
+// DefaultQCPolicy returns the defaults: ±20 % verification tolerance (US EPA
+// SW-846 Method 8000D), only approved curves in force, no maximum age.
+func DefaultQCPolicy() QCPolicy {
+	return QCPolicy{VerificationTolerancePct: calib.DefaultVerificationTolerancePct}
+}
+
+func (q QCPolicy) withDefaults() QCPolicy {
+	if q.VerificationTolerancePct == 0 {
+		q.VerificationTolerancePct = calib.DefaultVerificationTolerancePct
+	}
+	return q
+}
+
+func (q QCPolicy) check() error {
+	if !finite(q.VerificationTolerancePct) || q.VerificationTolerancePct <= 0 || q.VerificationTolerancePct > 100 {
+		return FieldError("/acceptance/verification_tolerance_pct", "must be a number in (0, 100]")
+	}
+	if !finite(q.MaxCurveAgeHours) || q.MaxCurveAgeHours < 0 || q.MaxCurveAgeHours > 24*366*10 {
+		return FieldError("/max_curve_age_hours", "must be a number of hours in (0, 87840], or absent for no limit")
+	}
+	return nil
+}
+
+func (q QCPolicy) equal(o QCPolicy) bool {
+	return q.VerificationTolerancePct == o.VerificationTolerancePct &&
+		q.PendingCurvesInForce == o.PendingCurvesInForce && q.MaxCurveAgeHours == o.MaxCurveAgeHours
+}
+
+// MaxAge returns the maximum age of a curve in force, 0 for none.
+func (q QCPolicy) MaxAge() time.Duration {
+	if q.MaxCurveAgeHours <= 0 {
+		return 0
+	}
+	return time.Duration(math.Round(q.MaxCurveAgeHours * float64(time.Hour)))
+}

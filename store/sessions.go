@@ -1,0 +1,103 @@
+package store
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+)
+
+// Audit actions of the QA pages' sessions.
+const (
+	ActionSessionCreate = "session.create"
+	ActionSessionDelete = "session.delete"
+)
+
+// MaxSessionTTL bounds the lifetime of a session of the QA pages.
+const MaxSessionTTL = 24 * time.Hour
+
+// Session is a signed-in browser session of the QA pages: the token it was
+// opened with (scopes read afresh) and when it ends.
+type Session struct {
+	Token     Token
+	ExpiresAt time.Time
+}
+
+// CreateSession exchanges an API token's secret for a new session of ttl
+// (at most MaxSessionTTL) and returns the session's secret, shown only here
+// (the database keeps its SHA-256), and the token. An unknown or revoked
+// token is KindNotFound. Expired sessions are pruned in the same
+// transaction, and the sign-in is audited under the token.
+func (db *DB) CreateSession(ctx context.Context, tokenSecret string, ttl time.Duration) (string, Token, error) {
+	if ttl <= 0 || ttl > MaxSessionTTL {
+		return "", Token{}, Errorf(KindInvalid, "session lifetime must be in (0, %s]", MaxSessionTTL)
+	}
+	tok, err := db.LookupToken(ctx, tokenSecret)
+	if err != nil {
+		return "", Token{}, err
+	}
+	secret, err := newSecret()
+	if err != nil {
+		return "", Token{}, err
+	}
+	err = db.inTx(ctx, func(tx pgx.Tx) error {
+		if _, err := tx.Exec(ctx, `DELETE FROM ui_sessions WHERE expires_at < now()`); err != nil {
+			return classify("prune sessions", err)
+		}
+		_, err := tx.Exec(ctx, `INSERT INTO ui_sessions (id_hash, token_id, expires_at) VALUES ($1, $2, now() + $3::interval)`,
+			hashSecret(secret), tok.ID, fmt.Sprintf("%d microseconds", ttl.Microseconds()))
+		if err != nil {
+			return classify("insert session", err)
+		}
+		return writeAudit(ctx, tx, actorOf(tok), ActionSessionCreate, entityToken, tok.ID,
+			map[string]any{"ttl_seconds": int64(ttl.Seconds())})
+	})
+	if err != nil {
+		return "", Token{}, classify("create session", err)
+	}
+	return secret, tok, nil
+}
+
+// actorOf names a token in the audit trail as the api does.
+func actorOf(t Token) string { return "token:" + t.Name + ":" + t.ID }
+
+// LookupSession returns the live session whose secret is secret. An unknown
+// or expired session, or one whose token was revoked, is KindNotFound.
+func (db *DB) LookupSession(ctx context.Context, secret string) (Session, error) {
+	var s Session
+	err := db.Pool.QueryRow(ctx, `
+SELECT t.id, t.name, t.scopes, s.expires_at
+FROM ui_sessions s JOIN tokens t ON t.id = s.token_id
+WHERE s.id_hash = $1 AND s.expires_at > now() AND t.revoked_at IS NULL`, hashSecret(secret)).
+		Scan(&s.Token.ID, &s.Token.Name, &s.Token.Scopes, &s.ExpiresAt)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return Session{}, Errorf(KindNotFound, "no such session")
+	}
+	if err != nil {
+		return Session{}, classify("look up session", err)
+	}
+	return s, nil
+}
+
+// DeleteSession ends the session whose secret is secret (signing out), with
+// an audit row. An unknown session is not an error: signing out twice is
+// harmless.
+func (db *DB) DeleteSession(ctx context.Context, secret string) error {
+	err := db.inTx(ctx, func(tx pgx.Tx) error {
+		var t Token
+		err := tx.QueryRow(ctx, `
+DELETE FROM ui_sessions s USING tokens t
+WHERE s.id_hash = $1 AND t.id = s.token_id
+RETURNING t.id, t.name`, hashSecret(secret)).Scan(&t.ID, &t.Name)
+		if errors.Is(err, pgx.ErrNoRows) {
+			return nil
+		}
+		if err != nil {
+			return classify("delete session", err)
+		}
+		return writeAudit(ctx, tx, actorOf(t), ActionSessionDelete, entityToken, t.ID, map[string]any{})
+	})
+	return classify("delete session", err)
+}

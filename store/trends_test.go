@@ -1,0 +1,87 @@
+package store_test
+
+import (
+	"context"
+	"testing"
+	"time"
+
+	"curvekeeper/store"
+)
+
+func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
+	ctx := context.Background()
+	db := newDB(t)
+	m := mustMethod(t, db, "nitrate-ic")
+	var nitrate []string // curve ids, oldest first
+	for i := 0; i < 5; i++ {
+		in, curves := runInput(m, baseTime.Add(time.Duration(i)*24*time.Hour))
+		created, err := db.CreateRun(ctx, in, curves)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, c := range created.Curves {
+			if c.Analyte == "nitrate" {
+				nitrate = append(nitrate, c.ID)
+			}
+		}
+	}
+	// Approve the first three, reject the fourth, leave the fifth pending.
+	for i, id := range nitrate[:4] {
+		d := store.DecisionApprove
+		if i == 3 {
+			d = store.DecisionReject
+		}
+		if _, err := db.ReviewCurve(ctx, id, d, "test", "qa-test"); err != nil {
+			t.Fatal(err)
+		}
+	}
+	t.Run("series oldest first, every status", func(t *testing.T) {
+		got, truncated, err := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02", Analyte: "nitrate"})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if truncated || len(got) != 5 {
+			t.Fatalf("got %d curves (truncated %v), want 5", len(got), truncated)
+		}
+		for i, c := range got {
+			if c.ID != nitrate[i] {
+				t.Errorf("curve %d = %s, want %s", i, c.ID, nitrate[i])
+			}
+			if v, ok := c.ParamValue(store.ParamSlope); !ok || v <= 0 {
+				t.Errorf("slope of curve %d = %v, %v", i, v, ok)
+			}
+		}
+		if got[3].Status != store.StatusRejected || got[4].Status != store.StatusPendingReview {
+			t.Errorf("statuses %s, %s", got[3].Status, got[4].Status)
+		}
+	})
+	t.Run("window", func(t *testing.T) {
+		got, _, err := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02", Analyte: "nitrate",
+			From: baseTime.Add(24 * time.Hour), To: baseTime.Add(3 * 24 * time.Hour)})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(got) != 2 || got[0].ID != nitrate[1] || got[1].ID != nitrate[2] {
+			t.Errorf("window gave %d curves", len(got))
+		}
+	})
+	t.Run("needs instrument and analyte", func(t *testing.T) {
+		_, _, err := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02"})
+		wantKind(t, err, store.KindInvalid)
+	})
+	t.Run("recent approved slopes, oldest first, before the new curve", func(t *testing.T) {
+		got, err := db.RecentApprovedSlopes(ctx, "ic-02", "nitrate", baseTime.Add(10*24*time.Hour), 2)
+		if err != nil {
+			t.Fatal(err)
+		}
+		all, _, _ := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02", Analyte: "nitrate"})
+		want := []float64{*all[1].Slope, *all[2].Slope}
+		if len(got) != 2 || got[0] != want[0] || got[1] != want[1] {
+			t.Errorf("got %v, want %v (the two newest approved, oldest first)", got, want)
+		}
+		none, err := db.RecentApprovedSlopes(ctx, "ic-02", "nitrate", baseTime, 20)
+		if err != nil || len(none) != 0 {
+			t.Errorf("before the first curve: %v, %v", none, err)
+		}
+	})
+}

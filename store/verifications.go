@@ -1,0 +1,202 @@
+package store
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"strings"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/calib"
+)
+
+// Verification kinds and the audit action of a verification.
+const (
+	VerificationInitial    = "initial"    // ICV
+	VerificationContinuing = "continuing" // CCV
+	ActionCurveVerify      = "curve.verification"
+)
+
+// Rules a verification request can break; each error message names its rule.
+const (
+	RuleCurveNotRejected = "curve_not_rejected"
+	RuleCurveIsCurrent   = "curve_is_current"
+	RuleCurveHasFit      = "curve_has_fit"
+	RuleAfterCalibration = "verification_after_calibration"
+)
+
+// VerificationInput is a verification standard measured against a curve.
+type VerificationInput struct {
+	CurveID       string
+	Kind          string // VerificationInitial or VerificationContinuing
+	Level         string
+	Concentration float64 // nominal, > 0
+	Responses     []float64
+	At            time.Time // when it was measured
+	Actor         string
+}
+
+// Verification is a stored verification with its outcome.
+type Verification struct {
+	ID            string
+	CurveID       string
+	Kind          string
+	Level         string
+	Concentration float64
+	Responses     []float64
+	Found         *float64 // nil when the curve has no root for the response
+	RecoveryPct   *float64
+	DifferencePct *float64
+	LimitPct      float64
+	Passed        bool
+	Detail        string
+	At            time.Time
+	CreatedAt     time.Time
+	CreatedBy     string
+	// ResultsChanged counts the results whose release state this
+	// verification changed (only when just created).
+	ResultsChanged int
+}
+
+// CreateVerification judges a verification standard against curve
+// in.CurveID with the tolerance of the curve's method revision
+// (QCPolicy.VerificationTolerancePct) and stores it, its audit row and the
+// release-state changes it causes (a failure withholds the curve's results
+// acquired after it; a pass releases those acquired after it again), in one
+// transaction. The curve must have a fit, must not be rejected and must not
+// be superseded by a revision (KindConflict naming the rule); the
+// verification must not predate the calibration (KindInvalid on /at).
+func (db *DB) CreateVerification(ctx context.Context, in VerificationInput) (*Verification, error) {
+	curveID, err := parseID("curve", in.CurveID)
+	if err != nil {
+		return nil, err
+	}
+	if in.Kind != VerificationInitial && in.Kind != VerificationContinuing {
+		return nil, FieldError("/kind", "kind must be %q or %q", VerificationInitial, VerificationContinuing)
+	}
+	if strings.TrimSpace(in.Level) == "" {
+		return nil, FieldError("/level", "level is required")
+	}
+	if in.At.IsZero() {
+		return nil, FieldError("/at", "at is required")
+	}
+	id, err := newID()
+	if err != nil {
+		return nil, err
+	}
+	var v *Verification
+	err = db.inTx(ctx, func(tx pgx.Tx) error {
+		var (
+			status, verdict string
+			acquired        time.Time
+			raw, qcRaw      []byte
+		)
+		err := tx.QueryRow(ctx, `
+SELECT c.status, c.verdict, c.acquired_at, c.report, m.qc
+FROM curves c JOIN methods m ON m.name = c.method AND m.revision = c.method_revision
+WHERE c.id = $1 FOR UPDATE OF c`, curveID).Scan(&status, &verdict, &acquired, &raw, &qcRaw)
+		if errors.Is(err, pgx.ErrNoRows) {
+			return Errorf(KindNotFound, "curve %s not found", curveID)
+		}
+		if err != nil {
+			return classify("lock curve "+curveID, err)
+		}
+		var revision *string
+		if err := tx.QueryRow(ctx, `SELECT curve_id::text FROM exclusions WHERE revision_of = $1`, curveID).Scan(&revision); err != nil && !errors.Is(err, pgx.ErrNoRows) {
+			return classify("select revision of curve "+curveID, err)
+		}
+		switch {
+		case status == StatusRejected:
+			return Errorf(KindConflict, "rule %s: curve %s was rejected in review; a rejected curve quantifies nothing, so it cannot be verified (calibrate again)", RuleCurveNotRejected, curveID)
+		case revision != nil:
+			return Errorf(KindConflict, "rule %s: curve %s was superseded by its revision %s; verify against the revision", RuleCurveIsCurrent, curveID, *revision)
+		case in.At.Before(acquired):
+			return FieldError("/at", "rule %s: a verification is measured after its calibration (curve acquired at %s)", RuleAfterCalibration, acquired.UTC().Format(time.RFC3339))
+		}
+		rep := new(calib.Report)
+		if err := json.Unmarshal(raw, rep); err != nil {
+			return fmt.Errorf("store: decode report of curve %s: %w", curveID, err)
+		}
+		if len(rep.Coefficients) == 0 {
+			return Errorf(KindConflict, "rule %s: curve %s could not be fitted, so nothing can be read back from it", RuleCurveHasFit, curveID)
+		}
+		var qc QCPolicy
+		if err := json.Unmarshal(qcRaw, &qc); err != nil {
+			return fmt.Errorf("store: decode qc of the method of curve %s: %w", curveID, err)
+		}
+		qc = qc.withDefaults()
+		res, err := rep.Verify(in.Responses, in.Concentration, qc.VerificationTolerancePct)
+		if err != nil {
+			var ie *calib.InputError
+			if errors.As(err, &ie) {
+				return FieldError("/"+strings.ReplaceAll(strings.ReplaceAll(ie.Field, "[", "/"), "]", ""), "%s", ie.Reason)
+			}
+			return fmt.Errorf("store: verify curve %s: %w", curveID, err)
+		}
+		v = &Verification{ID: id, CurveID: curveID, Kind: in.Kind, Level: in.Level, Concentration: in.Concentration,
+			Responses: in.Responses, LimitPct: res.LimitPct, Passed: res.Passed, Detail: res.Detail, At: in.At.UTC(), CreatedBy: in.Actor}
+		if res.HasFound {
+			v.Found, v.RecoveryPct, v.DifferencePct = fptr(res.Found), fptr(res.RecoveryPct), fptr(res.DifferencePct)
+		}
+		err = tx.QueryRow(ctx, `
+INSERT INTO verifications (id, curve_id, kind, level, concentration, responses, found, recovery_pct, difference_pct,
+                           limit_pct, passed, detail, at, created_by)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14)
+RETURNING created_at`, id, curveID, v.Kind, v.Level, v.Concentration, v.Responses, v.Found, v.RecoveryPct,
+			v.DifferencePct, v.LimitPct, v.Passed, v.Detail, v.At, v.CreatedBy).Scan(&v.CreatedAt)
+		if err != nil {
+			return classify("insert verification", err)
+		}
+		if err := writeAudit(ctx, tx, in.Actor, ActionCurveVerify, entityCurve, curveID, map[string]any{
+			"verification_id": id, "kind": v.Kind, "level": v.Level, "concentration": v.Concentration,
+			"found": v.Found, "difference_pct": v.DifferencePct, "limit_pct": v.LimitPct, "passed": v.Passed, "at": v.At,
+		}); err != nil {
+			return err
+		}
+		events := &eventBuffer{}
+		if v.ResultsChanged, err = refreshCurveResults(ctx, tx, curveID, CauseVerification, events); err != nil {
+			return err
+		}
+		return flushEvents(ctx, tx, events)
+	})
+	if err != nil {
+		return nil, classify("create verification", err)
+	}
+	return v, nil
+}
+
+// ListVerifications returns the verifications of curve id by time.
+func (db *DB) ListVerifications(ctx context.Context, id string) ([]Verification, error) {
+	id, err := parseID("curve", id)
+	if err != nil {
+		return nil, err
+	}
+	var out []Verification
+	err = db.readOnly(ctx, "list verifications", func(tx pgx.Tx) error {
+		var one int
+		if err := tx.QueryRow(ctx, `SELECT 1 FROM curves WHERE id = $1`, id).Scan(&one); err != nil {
+			if errors.Is(err, pgx.ErrNoRows) {
+				return Errorf(KindNotFound, "curve %s not found", id)
+			}
+			return classify("select curve", err)
+		}
+		rows, err := tx.Query(ctx, `
+SELECT id, curve_id, kind, level, concentration, responses, found, recovery_pct, difference_pct, limit_pct, passed,
+       detail, at, created_at, created_by
+FROM verifications WHERE curve_id = $1 ORDER BY at, id`, id)
+		if err != nil {
+			return classify("select verifications", err)
+		}
+		out, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (Verification, error) {
+			var v Verification
+			err := row.Scan(&v.ID, &v.CurveID, &v.Kind, &v.Level, &v.Concentration, &v.Responses, &v.Found, &v.RecoveryPct,
+				&v.DifferencePct, &v.LimitPct, &v.Passed, &v.Detail, &v.At, &v.CreatedAt, &v.CreatedBy)
+			return v, err
+		})
+		return err
+	})
+	return out, err
+}
