@@ -65,6 +65,10 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 	e := echo.New()
 	e.HideBanner = true
 	e.HidePort = true
+	// The remote address is the peer's, never a client-supplied
+	// X-Forwarded-For or X-Real-IP: those headers can be spoofed (see
+	// GO-2026-6872 and GO-2026-6875, reported against Echo's defaults).
+	e.IPExtractor = echo.ExtractIPDirect()
 	doc, err := oapi.GetSwagger()
 	if err != nil {
 		return nil, fmt.Errorf("api: load the embedded spec: %w", err)
