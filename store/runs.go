@@ -156,25 +156,8 @@ func checkRun(in *RunInput, curves []CurveInput) error {
 	}
 	in.Samples = slices.Clone(in.Samples) // the dilution default must not write into the caller's slice
 	for i := range in.Samples {
-		s := &in.Samples[i]
-		p := fmt.Sprintf("/samples/%d", i)
-		if s.Dilution == 0 {
-			s.Dilution = 1
-		}
-		switch {
-		case strings.TrimSpace(s.ID) == "" || len(s.ID) > 200:
-			return FieldError(p+"/id", "sample id must be 1 to 200 characters")
-		case strings.TrimSpace(s.Analyte) == "":
-			return FieldError(p+"/analyte", "analyte is required")
-		case len(s.Responses) == 0:
-			return FieldError(p+"/responses", "at least one response is required")
-		case !finite(s.Dilution) || s.Dilution <= 0:
-			return FieldError(p+"/dilution", "dilution must be a finite number > 0")
-		}
-		for k, r := range s.Responses {
-			if !finite(r) {
-				return FieldError(fmt.Sprintf("%s/responses/%d", p, k), "response must be a finite number")
-			}
+		if err := checkSample(&in.Samples[i], fmt.Sprintf("/samples/%d", i)); err != nil {
+			return err
 		}
 	}
 	analytes := map[string]bool{}

@@ -21,7 +21,8 @@ import (
 
 func TestMain(m *testing.M) { dbtest.Main(m) }
 
-// lockedBuffer collects a writer's output safely across goroutines.
+// lockedBuffer collects a writer's output safely across goroutines (a
+// copying goroutine writes, the test reads).
 type lockedBuffer struct {
 	mu sync.Mutex
 	b  strings.Builder

@@ -45,33 +45,14 @@ func buildBinary(t *testing.T) string {
 	return bin
 }
 
-// procBuffer collects a child's output; written by a copying goroutine,
-// read by the test.
-type procBuffer struct {
-	mu  sync.Mutex
-	buf bytes.Buffer
-}
-
-func (b *procBuffer) Write(p []byte) (int, error) {
-	b.mu.Lock()
-	defer b.mu.Unlock()
-	return b.buf.Write(p)
-}
-
-func (b *procBuffer) String() string {
-	b.mu.Lock()
-	defer b.mu.Unlock()
-	return b.buf.String()
-}
-
 // proc is one running curvekeeper process (the built binary; main_test.go's
 // service runs run() in-process instead).
 type proc struct {
 	t      *testing.T
 	cmd    *exec.Cmd
 	base   string // http://127.0.0.1:port
-	stdout *procBuffer
-	stderr *procBuffer
+	stdout *lockedBuffer
+	stderr *lockedBuffer
 	addr   chan string   // receives the URL the service prints
 	done   chan struct{} // closed when the process has exited
 	err    error         // its exit status, after done
@@ -96,7 +77,7 @@ func launchProc(t *testing.T, bin string, env []string, args ...string) *proc {
 		}
 	}
 	cmd.Env = append(cmd.Env, env...)
-	s := &proc{t: t, cmd: cmd, stdout: &procBuffer{}, stderr: &procBuffer{}, done: make(chan struct{})}
+	s := &proc{t: t, cmd: cmd, stdout: &lockedBuffer{}, stderr: &lockedBuffer{}, done: make(chan struct{})}
 	outPipe, err := cmd.StdoutPipe()
 	if err != nil {
 		t.Fatal(err)
