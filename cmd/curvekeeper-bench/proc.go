@@ -67,7 +67,7 @@ func startProc(ctx context.Context, bin string, args, env []string, logPath, rea
 		return nil, fmt.Errorf("start %s: %w", bin, err)
 	}
 	p := &proc{cmd: cmd, logPath: logPath, exited: make(chan struct{})}
-	lines := make(chan string)
+	lines := make(chan string, 16) // buffered: the ready and pprof lines come back to back
 	go func() {
 		sc := bufio.NewScanner(stdout)
 		for sc.Scan() {
