@@ -1,7 +1,6 @@
 package api
 
 import (
-	"context"
 	"slices"
 
 	"curvekeeper/calib"
@@ -14,12 +13,12 @@ const driftHistory = 20
 
 // addDriftChecks adds the drift check to each fitted curve of a new run: its
 // slope against the slopes of the same instrument and analyte's most recent
-// approved curves (one indexed query per analyte, before the transaction
-// opens). The check is advisory unless the method makes it mandatory; an
-// advisory check that cannot be computed (too little history) is left out,
-// a mandatory one is reported as not computed and fails the verdict, as
-// every mandatory check does.
-func (s *Server) addDriftChecks(ctx context.Context, m *store.Method, in *store.RunInput, curves []store.CurveInput) error {
+// approved curves (hist, per analyte, read with the method before the
+// transaction opens; see store.ReadForRun). The check is advisory unless the
+// method makes it mandatory; an advisory check that cannot be computed (too
+// little history) is left out, a mandatory one is reported as not computed
+// and fails the verdict, as every mandatory check does.
+func addDriftChecks(m *store.Method, hist map[string][]float64, curves []store.CurveInput) {
 	mandatory := slices.Contains(m.Options().Policy.Mandatory, calib.CheckDrift)
 	for _, c := range curves {
 		r := c.Report
@@ -27,11 +26,7 @@ func (s *Server) addDriftChecks(ctx context.Context, m *store.Method, in *store.
 		if !ok {
 			continue
 		}
-		hist, err := s.db.RecentApprovedSlopes(ctx, in.Instrument, c.Analyte, in.AcquiredAt, driftHistory)
-		if err != nil {
-			return err
-		}
-		ch := calib.DriftCheck("slope", hist, slope)
+		ch := calib.DriftCheck("slope", hist[c.Analyte], slope)
 		if !ch.Computed && !mandatory {
 			continue
 		}
@@ -44,7 +39,6 @@ func (s *Server) addDriftChecks(ctx context.Context, m *store.Method, in *store.
 			r.Verdict = store.VerdictFail
 		}
 	}
-	return nil
 }
 
 // slopeOf returns b1 of a fitted report.

@@ -31,29 +31,26 @@ func (s *Server) CreateRun(ctx context.Context, req oapi.CreateRunRequestObject)
 	if req.Params.IdempotencyKey != nil {
 		key = *req.Params.IdempotencyKey
 	}
-	if key != "" {
-		prev, err := s.db.LookupIdempotency(ctx, p.TokenID, key, hash)
-		switch {
-		case err == nil:
-			return runCreatedOut(prev), nil
-		case store.KindOf(err) != store.KindNotFound:
-			return nil, idempotencyError(err)
-		}
-	}
-	m, err := s.db.GetMethod(ctx, string(body.Method))
+	// One round trip for the idempotency key, the method's latest revision
+	// and the drift history of every analyte the run names.
+	reads, err := s.db.ReadForRun(ctx, store.RunReadsQuery{TokenID: p.TokenID, Key: key, RequestHash: hash,
+		Method: string(body.Method), Instrument: string(body.Instrument), Analytes: runAnalytes(body),
+		Before: body.AcquiredAt, Limit: driftHistory})
 	if err != nil {
 		if store.KindOf(err) == store.KindNotFound {
 			return nil, store.FieldError("/method", "no method is called %q; an administrator defines methods with POST /v1/methods", body.Method)
 		}
-		return nil, err
+		return nil, idempotencyError(err)
 	}
+	if reads.Replay != nil {
+		return runCreatedOut(reads.Replay), nil
+	}
+	m := reads.Method
 	in, curves, err := s.prepareRun(m, body)
 	if err != nil {
 		return nil, err
 	}
-	if err := s.addDriftChecks(ctx, m, &in, curves); err != nil {
-		return nil, err
-	}
+	addDriftChecks(m, reads.Slopes, curves)
 	in.SourceFormat, in.RequestHash, in.IdempotencyKey = format, hash, key
 	in.TokenID, in.Actor = p.TokenID, p.Actor()
 	created, err := s.db.CreateRun(ctx, in, curves)
@@ -61,6 +58,15 @@ func (s *Server) CreateRun(ctx context.Context, req oapi.CreateRunRequestObject)
 		return nil, idempotencyError(err)
 	}
 	return runCreatedOut(created), nil
+}
+
+// runAnalytes lists the analyte of every standard of a run (with repeats).
+func runAnalytes(body *oapi.RunRequest) []string {
+	out := make([]string, 0, len(body.Standards))
+	for _, st := range body.Standards {
+		out = append(out, string(st.Analyte))
+	}
+	return out
 }
 
 // idempotencyError names the header when a key was reused with another body.

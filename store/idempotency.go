@@ -1,11 +1,7 @@
 package store
 
 import (
-	"bytes"
 	"context"
-	"encoding/json"
-	"errors"
-	"fmt"
 
 	"github.com/jackc/pgx/v5"
 )
@@ -39,23 +35,7 @@ type rowQuerier interface {
 // set: KindNotFound when the key is unused, KindInvalid when it was used with
 // another request hash.
 func storedRun(ctx context.Context, q rowQuerier, tokenID, key string, requestHash []byte) (*RunCreated, error) {
-	var hash, body []byte
-	err := q.QueryRow(ctx, sqlSelectKey, tokenID, key).Scan(&hash, &body)
-	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "idempotency key not used")
-	}
-	if err != nil {
-		return nil, classify("select idempotency key", err)
-	}
-	if !bytes.Equal(hash, requestHash) {
-		return nil, errKeyReused()
-	}
-	var out RunCreated
-	if err := json.Unmarshal(body, &out); err != nil {
-		return nil, fmt.Errorf("store: decode stored response of idempotency key: %w", err)
-	}
-	out.Replayed = true
-	return &out, nil
+	return decodeStoredRun(q.QueryRow(ctx, sqlSelectKey, tokenID, key), requestHash)
 }
 
 // LookupIdempotency returns the run stored under (tokenID, key), so the api

@@ -152,6 +152,21 @@ func TestCreateRunIdempotencyKey(t *testing.T) {
 	wantKind(t, err, store.KindInvalid)
 	_, err = db.LookupIdempotency(ctx, tokenA, "never-used", in.RequestHash)
 	wantKind(t, err, store.KindNotFound)
+	// ReadForRun makes LookupIdempotency's decisions in its batch.
+	q := store.RunReadsQuery{TokenID: tokenA, Key: in.IdempotencyKey, RequestHash: in.RequestHash,
+		Method: m.Name, Instrument: in.Instrument, Before: in.AcquiredAt, Limit: 20}
+	reads, err := db.ReadForRun(ctx, q)
+	if err != nil || reads.Replay == nil || reads.Replay.ID != first.ID || !reads.Replay.Replayed {
+		t.Errorf("ReadForRun = %+v, %v; want the replay of run %s", reads, err, first.ID)
+	}
+	q.RequestHash = other.RequestHash
+	_, err = db.ReadForRun(ctx, q)
+	wantKind(t, err, store.KindInvalid)
+	q.Key, q.RequestHash = "never-used", in.RequestHash
+	reads, err = db.ReadForRun(ctx, q)
+	if err != nil || reads.Replay != nil || reads.Method == nil || reads.Method.Name != m.Name {
+		t.Errorf("ReadForRun with an unused key = %+v, %v; want the method and no replay", reads, err)
+	}
 
 	// The same key from another token is another request.
 	byB := in

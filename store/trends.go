@@ -90,6 +90,13 @@ func (c *CurveSummary) ParamValue(p string) (float64, bool) {
 	return *v, true
 }
 
+// sqlRecentApprovedSlopes reads the drift history of RecentApprovedSlopes.
+const sqlRecentApprovedSlopes = `
+SELECT slope FROM curves
+WHERE instrument = $1 AND analyte = $2 AND status = 'approved' AND acquired_at < $3 AND slope IS NOT NULL
+ORDER BY acquired_at DESC, id DESC
+LIMIT $4`
+
 // RecentApprovedSlopes returns the slopes of the at most limit newest
 // approved curves of instrument and analyte acquired before before, oldest
 // first: the history a new curve's drift check is judged against. It is one
@@ -98,11 +105,7 @@ func (db *DB) RecentApprovedSlopes(ctx context.Context, instrument, analyte stri
 	if limit < 1 || limit > MaxTrendPoints {
 		return nil, Errorf(KindInvalid, "limit must be in [1, %d]", MaxTrendPoints)
 	}
-	rows, err := db.Pool.Query(ctx, `
-SELECT slope FROM curves
-WHERE instrument = $1 AND analyte = $2 AND status = 'approved' AND acquired_at < $3 AND slope IS NOT NULL
-ORDER BY acquired_at DESC, id DESC
-LIMIT $4`, instrument, analyte, before, limit)
+	rows, err := db.Pool.Query(ctx, sqlRecentApprovedSlopes, instrument, analyte, before, limit)
 	if err != nil {
 		return nil, classify("recent approved slopes", err)
 	}

@@ -2,6 +2,7 @@ package store_test
 
 import (
 	"context"
+	"slices"
 	"testing"
 	"time"
 
@@ -83,5 +84,29 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 		if err != nil || len(none) != 0 {
 			t.Errorf("before the first curve: %v, %v", none, err)
 		}
+	})
+	t.Run("ReadForRun reads the method and the same slopes in one batch", func(t *testing.T) {
+		before := baseTime.Add(10 * 24 * time.Hour)
+		got, err := db.ReadForRun(ctx, store.RunReadsQuery{Method: m.Name, Instrument: "ic-02",
+			Analytes: []string{"nitrate", "nitrate", "sulfate"}, Before: before, Limit: 2})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got.Replay != nil || got.Method == nil || got.Method.Name != m.Name || got.Method.Revision != m.Revision {
+			t.Fatalf("ReadForRun = %+v, want method %s/%d and no replay", got, m.Name, m.Revision)
+		}
+		for _, a := range []string{"nitrate", "sulfate"} {
+			want, err := db.RecentApprovedSlopes(ctx, "ic-02", a, before, 2)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if g := got.Slopes[a]; !slices.Equal(g, want) {
+				t.Errorf("slopes of %s = %v, want RecentApprovedSlopes' %v", a, g, want)
+			}
+		}
+		_, err = db.ReadForRun(ctx, store.RunReadsQuery{Method: "no-such-method", Instrument: "ic-02", Before: before, Limit: 2})
+		wantKind(t, err, store.KindNotFound)
+		_, err = db.ReadForRun(ctx, store.RunReadsQuery{Method: m.Name, Instrument: "ic-02", Before: before, Limit: 0})
+		wantKind(t, err, store.KindInvalid)
 	})
 }
