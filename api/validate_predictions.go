@@ -10,6 +10,8 @@ import (
 	"net/http"
 
 	"github.com/labstack/echo/v4"
+
+	"curvekeeper/api/oapi"
 )
 
 // The prediction route is the hot path of LIMS integrations: many small
@@ -56,7 +58,33 @@ func predictionFastPath(c echo.Context) (bool, error) {
 	if mt, _, err := mime.ParseMediaType(req.Header.Get(echo.HeaderContentType)); err != nil || mt != echo.MIMEApplicationJSON {
 		return false, nil
 	}
-	return predictionBodyOK(raw), nil
+	body, ok := decodeFastPrediction(raw)
+	if ok {
+		c.Set(fastPredictionKey, body)
+	}
+	return ok, nil
+}
+
+// fastPredictionKey holds, in the echo context, the prediction request the
+// fast path accepted and decoded.
+const fastPredictionKey = "curvekeeper.fastPrediction"
+
+// predictionBinder is the server's echo binder. The generated strict handler
+// binds only the body with a custom binder as with echo's default one
+// (DefaultBinder.BindBody); for a prediction request that the fast path
+// accepted, it hands over the value the fast path decoded from the same
+// bytes instead of decoding them a second time.
+type predictionBinder struct{ echo.DefaultBinder }
+
+// Bind binds the request body into i.
+func (b *predictionBinder) Bind(i any, c echo.Context) error {
+	if dst, ok := i.(*oapi.PredictionRequest); ok {
+		if v, ok := c.Get(fastPredictionKey).(*oapi.PredictionRequest); ok && v != nil {
+			*dst = *v
+			return nil
+		}
+	}
+	return b.DefaultBinder.BindBody(c, i)
 }
 
 // predictionBodyOK reports whether raw is a PredictionRequest the spec
@@ -66,15 +94,36 @@ func predictionFastPath(c echo.Context) (bool, error) {
 // is valid anywhere in this schema, and a typed decode cannot tell null from
 // absent); then a typed decode refusing unknown members, and the bounds.
 func predictionBodyOK(raw []byte) bool {
+	_, ok := decodeFastPrediction(raw)
+	return ok
+}
+
+// decodeFastPrediction is predictionBodyOK returning, when it accepts, the
+// request it decoded, so that the handler need not decode the body again
+// (see predictionBinder).
+func decodeFastPrediction(raw []byte) (*oapi.PredictionRequest, bool) {
 	if !keysAndLiteralsOK(raw) {
-		return false
+		return nil, false
 	}
 	var req fastPredictionRequest
 	dec := json.NewDecoder(bytes.NewReader(raw))
 	dec.DisallowUnknownFields()
 	if dec.Decode(&req) != nil || len(bytes.TrimSpace(raw[dec.InputOffset():])) != 0 {
-		return false
+		return nil, false
 	}
+	if !req.withinBounds() {
+		return nil, false
+	}
+	out := &oapi.PredictionRequest{Confidence: req.Confidence, Samples: make([]oapi.PredictionSample, len(*req.Samples))}
+	for i, sm := range *req.Samples {
+		out.Samples[i] = oapi.PredictionSample{ID: *sm.ID, Responses: *sm.Responses, Dilution: sm.Dilution}
+	}
+	return out, true
+}
+
+// withinBounds checks a decoded request against the schema's required
+// members and bounds.
+func (req *fastPredictionRequest) withinBounds() bool {
 	if req.Samples == nil || len(*req.Samples) < 1 || len(*req.Samples) > fastSamplesMax {
 		return false
 	}

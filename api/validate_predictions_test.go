@@ -3,6 +3,7 @@ package api
 import (
 	"encoding/json"
 	"fmt"
+	"reflect"
 	"slices"
 	"strings"
 	"testing"
@@ -175,6 +176,19 @@ func TestFastPathNeverAcceptsWhatTheSpecRefuses(t *testing.T) {
 			}
 			if got && !specAccepts(t, schema, tc.body) {
 				t.Errorf("the fast path accepts a body the spec refuses")
+			}
+			if !got {
+				return
+			}
+			// The handler receives the fast path's value instead of echo's
+			// decode of the same bytes (predictionBinder): they must agree.
+			fast, _ := decodeFastPrediction([]byte(tc.body))
+			var want oapi.PredictionRequest
+			if err := json.Unmarshal([]byte(tc.body), &want); err != nil {
+				t.Fatal(err)
+			}
+			if !reflect.DeepEqual(*fast, want) {
+				t.Errorf("fast path decoded %+v, encoding/json %+v", *fast, want)
 			}
 		})
 	}
