@@ -2,7 +2,6 @@ package calib
 
 import (
 	"math"
-	"sync/atomic"
 
 	"gonum.org/v1/gonum/stat/distuv"
 )
@@ -19,39 +18,13 @@ type quantileKey struct {
 // quantiles caches Student t and F quantiles by (p, df). The inverse
 // incomplete beta function behind both costs microseconds, far more than a
 // whole calibration fit, and the same few (p, df) pairs recur in every run.
-// It is a four-way set-associative table of atomic pointers to immutable
-// entries: a lookup is a few loads, and concurrent requests may share it.
-var quantiles [256]atomic.Pointer[quantileEntry]
-
-type quantileEntry struct {
-	key quantileKey
-	q   float64
-}
+var quantiles = newSetCache[quantileKey, float64](64)
 
 // cachedQuantile returns the quantile of k, computing it with compute on a
 // miss.
 func cachedQuantile(k quantileKey, compute func() float64) float64 {
 	h := math.Float64bits(k.p) ^ uint64(k.kind)<<56 ^ uint64(k.d1)*0x100000001b3 ^ uint64(k.d2)*0xc2b2ae3d27d4eb4f
-	set := quantiles[((h*0x9e3779b97f4a7c15)>>58)*4:][:4]
-	free := -1
-	for i := range set {
-		e := set[i].Load()
-		if e == nil {
-			if free < 0 {
-				free = i
-			}
-			continue
-		}
-		if e.key == k {
-			return e.q
-		}
-	}
-	if free < 0 {
-		free = int(h>>7) & 3 // a full set: replace one, chosen by the key
-	}
-	e := &quantileEntry{key: k, q: compute()}
-	set[free].Store(e)
-	return e.q
+	return quantiles.get(h, k, compute)
 }
 
 // studentT returns t(p; df), the p-quantile of Student's t with df degrees of

@@ -369,40 +369,13 @@ func (t *text) g(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 6, 64
 // formatting would otherwise cost more than the arithmetic of the check.
 func (t *text) gc(v float64) *text { t.b = append(t.b, cachedG(v)...); return t }
 
-// gEntry is one formatted value of gCache.
-type gEntry struct {
-	bits uint64
-	s    string
-}
-
-// gCache caches fmtG by the value's bits, four-way set associative (so a
-// few colliding values do not evict each other run after run). Entries are
-// replaced whole through atomic pointers, so concurrent fits may share it.
-var gCache [1024]atomic.Pointer[gEntry]
+// gCache caches fmtG by the value's bits.
+var gCache = newSetCache[uint64, string](256)
 
 // cachedG returns fmtG(v), from gCache when it holds v.
 func cachedG(v float64) string {
 	b := math.Float64bits(v)
-	set := gCache[((b*0x9e3779b97f4a7c15)>>56)*4:][:4]
-	free := -1
-	for i := range set {
-		e := set[i].Load()
-		if e == nil {
-			if free < 0 {
-				free = i
-			}
-			continue
-		}
-		if e.bits == b {
-			return e.s
-		}
-	}
-	if free < 0 {
-		free = int(b>>52) & 3 // a full set: replace one, chosen by the value
-	}
-	e := &gEntry{bits: b, s: fmtG(v)}
-	set[free].Store(e)
-	return e.s
+	return gCache.get(b, b, func() string { return fmtG(v) })
 }
 
 // g10 appends v with ten significant digits.
