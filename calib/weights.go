@@ -88,36 +88,16 @@ func planWeights(scheme Weighting, d *dataset) (weightPlan, []float64, error) {
 		wp.zero = "none needed: unweighted fit (every weight 1)"
 		return wp, raw, nil
 	case WeightInvX, WeightInvX2:
-		wp.floor = smallestNonZeroAbs(d.x)
-		k := 1
-		if scheme == WeightInvX2 {
-			k = 2
-		}
-		zeros := 0
-		for i, x := range d.x {
-			if x == 0 {
-				zeros++
-			}
-			raw[i] = relWeight(x, wp.floor, k)
-		}
+		var zeros int
+		wp.floor, zeros = powerWeights(d.x, raw, scheme == WeightInvX2)
 		t := newText()
 		wp.zero = t.s("a zero concentration is weighted as the smallest non-zero concentration among the fitted standards (").
 			g(wp.floor).s("); ").i(zeros).s(" fitted reading(s) at zero; no standard is dropped").str()
 		t.free()
 		return wp, raw, nil
 	case WeightInvY, WeightInvY2:
-		wp.floor = smallestNonZeroAbs(d.y)
-		k := 1
-		if scheme == WeightInvY2 {
-			k = 2
-		}
-		zeros := 0
-		for i, y := range d.y {
-			if y == 0 {
-				zeros++
-			}
-			raw[i] = relWeight(y, wp.floor, k)
-		}
+		var zeros int
+		wp.floor, zeros = powerWeights(d.y, raw, scheme == WeightInvY2)
 		t := newText()
 		wp.zero = t.s("weights use |y|; a zero response is weighted as the smallest non-zero |response| among the fitted standards (").
 			g(wp.floor).s("); ").i(zeros).s(" fitted reading(s) with zero response; no standard is dropped").str()
@@ -218,4 +198,22 @@ func (r *Report) unknownWeight(x0, y0 float64) float64 {
 		wp.floor = r.Variance.Floor
 	}
 	return r.WeightScale * wp.rawWeight(x0, y0)
+}
+
+// powerWeights fills raw with 1/|v| (or 1/v² when squared) for each value,
+// a zero taking the weight of the smallest non-zero |v| (the floor it
+// returns, with the number of zeros).
+func powerWeights(values, raw []float64, squared bool) (floor float64, zeros int) {
+	floor = smallestNonZeroAbs(values)
+	k := 1
+	if squared {
+		k = 2
+	}
+	for i, v := range values {
+		if v == 0 {
+			zeros++
+		}
+		raw[i] = relWeight(v, floor, k)
+	}
+	return floor, zeros
 }
