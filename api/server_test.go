@@ -68,19 +68,19 @@ func (b *syncBuffer) String() string {
 }
 
 // newEnv starts a server on a fresh database with the default Config.
-func newEnv(t *testing.T) *env {
+func newEnv(t testing.TB) *env {
 	t.Helper()
 	return newEnvConfig(t, api.Config{})
 }
 
 // newEnvConfig starts a server with cfg on a fresh database and stores the
 // bootstrap admin token, as the service does with CURVEKEEPER_BOOTSTRAP_TOKEN.
-func newEnvConfig(t *testing.T, cfg api.Config) *env {
+func newEnvConfig(t testing.TB, cfg api.Config) *env {
 	t.Helper()
 	return newEnvDB(t, cfg, dbtest.NewDB(t))
 }
 
-func newEnvDB(t *testing.T, cfg api.Config, db *store.DB) *env {
+func newEnvDB(t testing.TB, cfg api.Config, db *store.DB) *env {
 	t.Helper()
 	logs := &syncBuffer{}
 	logger := slog.New(slog.NewJSONHandler(logs, &slog.HandlerOptions{Level: slog.LevelDebug}))

@@ -3,7 +3,6 @@ package store
 import (
 	"context"
 	"errors"
-	"time"
 
 	"github.com/jackc/pgx/v5"
 )
@@ -36,17 +35,7 @@ func (db *DB) LookupTokenAndCurveStatus(ctx context.Context, secret, curveID str
 		t, err := db.LookupToken(ctx, secret)
 		return t, "", err
 	}
-	hash := hashSecret(secret)
-	var (
-		t         Token
-		stored    []byte
-		revokedAt *time.Time
-		status    *string
-	)
-	err = db.Pool.QueryRow(ctx, `
-SELECT t.id, t.name, t.scopes, t.hash, t.revoked_at, (SELECT c.status FROM curves c WHERE c.id = $2)
-FROM tokens t WHERE t.hash = $1`, hash, id).Scan(&t.ID, &t.Name, &t.Scopes, &stored, &revokedAt, &status)
-	t, err = liveToken(t, hash, stored, revokedAt, err)
+	t, status, err := db.lookupTokenStatus(ctx, secret, id)
 	if err != nil || status == nil {
 		return t, "", err
 	}

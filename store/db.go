@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"strings"
+	"sync"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -17,6 +18,9 @@ import (
 // DB is a handle on the service's database.
 type DB struct {
 	Pool *pgxpool.Pool
+
+	lookupsOnce  sync.Once
+	tokenLookups *tokenLookups // see token_lookups.go
 }
 
 // AppRole is the role the service works as (migrations/000005_app_role):

@@ -160,15 +160,28 @@ RETURNING id`, newTokenID, name, scopes, hash).Scan(&id)
 // LookupToken returns the live token whose secret is secret. An unknown or
 // revoked secret is a KindNotFound error (the api answers 401 for both).
 func (db *DB) LookupToken(ctx context.Context, secret string) (Token, error) {
+	t, _, err := db.lookupTokenStatus(ctx, secret, "")
+	return t, err
+}
+
+// lookupTokenStatus looks up the token of secret and, when curveID is not
+// "", the review status of that curve (nil when it names no curve), through
+// the coalescing lookups of token_lookups.go: a fresh read on every call.
+func (db *DB) lookupTokenStatus(ctx context.Context, secret, curveID string) (Token, *string, error) {
 	hash := hashSecret(secret)
-	var (
-		t         Token
-		stored    []byte
-		revokedAt *time.Time
-	)
-	err := db.Pool.QueryRow(ctx, `SELECT id, name, scopes, hash, revoked_at FROM tokens WHERE hash = $1`, hash).
-		Scan(&t.ID, &t.Name, &t.Scopes, &stored, &revokedAt)
-	return liveToken(t, hash, stored, revokedAt, err)
+	a, err := db.lookups().do(ctx, hash, curveID)
+	if err != nil {
+		return Token{}, nil, classify("look up token", err)
+	}
+	err = a.err
+	if err == nil && !a.found {
+		err = pgx.ErrNoRows
+	}
+	t, err := liveToken(a.tok, hash, a.stored, a.revokedAt, err)
+	if err != nil {
+		return Token{}, nil, err
+	}
+	return t, a.status, nil
 }
 
 // liveToken decides a token lookup: the row must exist, carry the hash and

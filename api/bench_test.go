@@ -1,0 +1,78 @@
+package api_test
+
+import (
+	"bytes"
+	"fmt"
+	"io"
+	"log/slog"
+	"net/http"
+	"net/http/httptest"
+	"syscall"
+	"testing"
+
+	"curvekeeper/api"
+	"curvekeeper/store/dbtest"
+)
+
+// BenchmarkPredictRoute is one POST /v1/curves/{id}/predictions of 10
+// samples in duplicate (the body of the harness's predict scenario) through
+// the whole middleware chain and handler, in process (no sockets), 64 at a time, with the
+// token and curve-status lookup against the real database. It shows the
+// service's own CPU and allocations per request, which the harness's
+// predict ratio depends on:
+//
+//	go test ./api -run '^$' -bench PredictRoute -benchmem -cpuprofile /tmp/predict.pprof
+func BenchmarkPredictRoute(b *testing.B) {
+	db := dbtest.NewDB(b)
+	s, err := api.New(api.Config{RateLimit: -1}, db, slog.New(slog.NewJSONHandler(io.Discard, nil)))
+	if err != nil {
+		b.Fatal(err)
+	}
+	e := &env{db: db, srv: httptest.NewServer(s.Handler()), admin: bootstrapSecret}
+	b.Cleanup(e.srv.Close)
+	if _, _, err := db.EnsureToken(b.Context(), "bootstrap-admin", bootstrapSecret, []string{"admin"}); err != nil {
+		b.Fatal(err)
+	}
+	run := e.nitrateCurve(b)
+	_, lims := e.token(b, "lims-bench", "results:read")
+	var body bytes.Buffer
+	body.WriteString(`{"samples":[`)
+	for i := range 10 {
+		y := 0.012 + 0.0481*(1+9.5*float64(i))
+		if i > 0 {
+			body.WriteByte(',')
+		}
+		fmt.Fprintf(&body, `{"id":"bench-sample-%d","responses":[%v,%v]}`, i+1, y*0.995, y*1.005)
+	}
+	body.WriteString(`]}`)
+	path := "/v1/curves/" + run.Curves[0].ID.String() + "/predictions"
+	h := s.Handler()
+	b.ReportAllocs()
+	b.SetParallelism(32) // 64 requests in flight on 2 cores, as the harness's 64 connections
+	cpu0 := processCPU()
+	b.RunParallel(func(pb *testing.PB) {
+		for pb.Next() {
+			req := httptest.NewRequest(http.MethodPost, path, bytes.NewReader(body.Bytes()))
+			req.Header.Set("Authorization", "Bearer "+lims)
+			req.Header.Set("Content-Type", "application/json")
+			w := httptest.NewRecorder()
+			h.ServeHTTP(w, req)
+			if w.Code != http.StatusOK {
+				b.Fatalf("status %d: %s", w.Code, w.Body.String())
+			}
+		}
+	})
+	// CPU time of this process per request (user + system): less disturbed
+	// by other work on a shared machine than ns/op, and what bounds the
+	// service's throughput when the cores are saturated.
+	b.ReportMetric(float64(processCPU()-cpu0)/float64(b.N), "cpu-ns/op")
+}
+
+// processCPU is the user + system CPU time this process has used, in ns.
+func processCPU() int64 {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return 0
+	}
+	return ru.Utime.Nano() + ru.Stime.Nano()
+}

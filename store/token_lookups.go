@@ -1,0 +1,169 @@
+package store
+
+import (
+	"context"
+	"sync"
+	"time"
+)
+
+// Token lookups run on every authenticated request, so under load they are
+// most of the statements the database executes. tokenLookups coalesces the
+// lookups that callers ask for while a statement is already running into
+// the next statement (the group-commit pattern, applied to reads): one
+// round trip then answers many requests.
+//
+// The rule that keeps revocation exact: a caller is answered only by a
+// statement that began after the caller asked. A statement sees every
+// transaction committed before it began (READ COMMITTED), so a revocation
+// committed before a request arrived is seen by that request's lookup, on
+// every replica, exactly as with one statement per request. A caller never
+// joins a statement already in flight; it waits for the next one.
+type tokenLookups struct {
+	db      *DB
+	max     int           // statements in flight at once
+	timeout time.Duration // of one statement, which serves many callers
+
+	mu      sync.Mutex
+	pending []*tokenLookup
+	running int
+}
+
+// tokenLookup is one caller's question (a token hash, and optionally a curve
+// whose review status it needs) and, once done is closed, its answer.
+type tokenLookup struct {
+	hash  []byte
+	curve string // "" when the caller needs no curve status
+	done  chan struct{}
+
+	found     bool
+	tok       Token
+	stored    []byte
+	revokedAt *time.Time
+	status    *string // nil when curve is "" or names no curve
+	err       error
+}
+
+// lookupStatements is how many coalesced statements may be in flight at
+// once. A caller that finds fewer in flight starts its own at once, so an
+// idle service answers in one round trip as before; under load the callers
+// that arrive during those statements share the next ones.
+const lookupStatements = 2
+
+// lookupTimeout bounds one coalesced statement. Each caller also stops
+// waiting when its own context ends.
+const lookupTimeout = 10 * time.Second
+
+func (db *DB) lookups() *tokenLookups {
+	db.lookupsOnce.Do(func() {
+		db.tokenLookups = &tokenLookups{db: db, max: lookupStatements, timeout: lookupTimeout}
+	})
+	return db.tokenLookups
+}
+
+// do asks for one lookup and waits for its answer.
+func (l *tokenLookups) do(ctx context.Context, hash []byte, curve string) (*tokenLookup, error) {
+	q := &tokenLookup{hash: hash, curve: curve, done: make(chan struct{})}
+	l.mu.Lock()
+	l.pending = append(l.pending, q)
+	var batch []*tokenLookup
+	if l.running < l.max {
+		l.running++
+		batch, l.pending = l.pending, nil
+	}
+	l.mu.Unlock()
+	if batch != nil {
+		go l.run(batch)
+	}
+	select {
+	case <-q.done:
+		return q, nil
+	case <-ctx.Done():
+		return nil, ctx.Err()
+	}
+}
+
+// run answers batch, then every batch that gathered meanwhile, until none
+// is pending.
+func (l *tokenLookups) run(batch []*tokenLookup) {
+	for {
+		l.answer(batch)
+		l.mu.Lock()
+		if len(l.pending) == 0 {
+			l.running--
+			l.mu.Unlock()
+			return
+		}
+		batch, l.pending = l.pending, nil
+		l.mu.Unlock()
+	}
+}
+
+// sqlTokenLookups answers a batch of (hash, curve) questions in one
+// statement; row i answers question i (1-based). A question whose hash
+// names no token has no row.
+const sqlTokenLookups = `
+SELECT q.i, t.id, t.name, t.scopes, t.hash, t.revoked_at,
+       (SELECT c.status FROM curves c WHERE c.id = q.curve)
+FROM unnest($1::bytea[], $2::uuid[]) WITH ORDINALITY AS q(hash, curve, i)
+JOIN tokens t ON t.hash = q.hash`
+
+// answer runs one statement for batch, asking each distinct question once.
+func (l *tokenLookups) answer(batch []*tokenLookup) {
+	type key struct{ hash, curve string }
+	index := make(map[key]int, len(batch)) // question → its 0-based position
+	var (
+		hashes [][]byte
+		curves []*string
+		first  []*tokenLookup // the first caller of each question
+	)
+	for _, q := range batch {
+		k := key{string(q.hash), q.curve}
+		if _, ok := index[k]; ok {
+			continue
+		}
+		index[k] = len(hashes)
+		hashes = append(hashes, q.hash)
+		var c *string
+		if q.curve != "" {
+			c = &q.curve
+		}
+		curves = append(curves, c)
+		first = append(first, q)
+	}
+
+	ctx, cancel := context.WithTimeout(context.Background(), l.timeout)
+	defer cancel()
+	err := func() error {
+		rows, err := l.db.Pool.Query(ctx, sqlTokenLookups, hashes, curves)
+		if err != nil {
+			return err
+		}
+		defer rows.Close()
+		for rows.Next() {
+			var (
+				i int64
+				a tokenLookup
+			)
+			if err := rows.Scan(&i, &a.tok.ID, &a.tok.Name, &a.tok.Scopes, &a.stored, &a.revokedAt, &a.status); err != nil {
+				return err
+			}
+			if i < 1 || int(i) > len(first) {
+				continue
+			}
+			q := first[i-1]
+			q.found, q.tok, q.stored, q.revokedAt, q.status = true, a.tok, a.stored, a.revokedAt, a.status
+		}
+		return rows.Err()
+	}()
+
+	for _, q := range batch {
+		src := first[index[key{string(q.hash), q.curve}]]
+		if err != nil {
+			q.err = err
+		} else if q != src {
+			q.found, q.tok, q.stored, q.revokedAt, q.status = src.found, src.tok, src.stored, src.revokedAt, src.status
+			q.tok.Scopes = append([]string(nil), src.tok.Scopes...)
+		}
+		close(q.done)
+	}
+}
