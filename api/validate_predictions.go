@@ -2,7 +2,6 @@ package api
 
 import (
 	"bytes"
-	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -88,11 +87,7 @@ func (b *predictionBinder) Bind(i any, c echo.Context) error {
 }
 
 // predictionBodyOK reports whether raw is a PredictionRequest the spec
-// accepts. Two passes: keysAndLiteralsOK checks that every member name is
-// spelled exactly as the spec spells one (encoding/json alone would also
-// take "Samples" for samples) and that no null, true or false appears (none
-// is valid anywhere in this schema, and a typed decode cannot tell null from
-// absent); then a typed decode refusing unknown members, and the bounds.
+// accepts.
 func predictionBodyOK(raw []byte) bool {
 	_, ok := decodeFastPrediction(raw)
 	return ok
@@ -100,44 +95,34 @@ func predictionBodyOK(raw []byte) bool {
 
 // decodeFastPrediction is predictionBodyOK returning, when it accepts, the
 // request it decoded, so that the handler need not decode the body again
-// (see predictionBinder).
+// (see predictionBinder). It parses the body itself in one pass (see
+// fastParser) and then checks the schema's bounds.
 func decodeFastPrediction(raw []byte) (*oapi.PredictionRequest, bool) {
-	if !keysAndLiteralsOK(raw) {
+	p := fastParser{raw: raw}
+	out, ok := p.request()
+	if !ok || !withinBounds(out) {
 		return nil, false
-	}
-	var req fastPredictionRequest
-	dec := json.NewDecoder(bytes.NewReader(raw))
-	dec.DisallowUnknownFields()
-	if dec.Decode(&req) != nil || len(bytes.TrimSpace(raw[dec.InputOffset():])) != 0 {
-		return nil, false
-	}
-	if !req.withinBounds() {
-		return nil, false
-	}
-	out := &oapi.PredictionRequest{Confidence: req.Confidence, Samples: make([]oapi.PredictionSample, len(*req.Samples))}
-	for i, sm := range *req.Samples {
-		out.Samples[i] = oapi.PredictionSample{ID: *sm.ID, Responses: *sm.Responses, Dilution: sm.Dilution}
 	}
 	return out, true
 }
 
-// withinBounds checks a decoded request against the schema's required
-// members and bounds.
-func (req *fastPredictionRequest) withinBounds() bool {
-	if req.Samples == nil || len(*req.Samples) < 1 || len(*req.Samples) > fastSamplesMax {
+// withinBounds checks a decoded request against the schema's bounds (the
+// parser has checked the required members).
+func withinBounds(req *oapi.PredictionRequest) bool {
+	if len(req.Samples) < 1 || len(req.Samples) > fastSamplesMax {
 		return false
 	}
 	if c := req.Confidence; c != nil && (*c < fastConfidenceMin || *c > fastConfidenceMax) {
 		return false
 	}
-	for _, sm := range *req.Samples {
-		if sm.ID == nil || !isIdentifier(*sm.ID) {
+	for _, sm := range req.Samples {
+		if !isIdentifier(sm.ID) {
 			return false
 		}
-		if sm.Responses == nil || len(*sm.Responses) < 1 || len(*sm.Responses) > fastResponsesMax {
+		if len(sm.Responses) < 1 || len(sm.Responses) > fastResponsesMax {
 			return false
 		}
-		for _, r := range *sm.Responses {
+		for _, r := range sm.Responses {
 			if r < -fastResponseAbsMax || r > fastResponseAbsMax {
 				return false
 			}
@@ -149,64 +134,17 @@ func (req *fastPredictionRequest) withinBounds() bool {
 	return true
 }
 
-// fastPredictionRequest mirrors the PredictionRequest schema with pointers,
-// so that a missing member is seen as missing.
-type fastPredictionRequest struct {
-	Confidence *float64 `json:"confidence"`
-	Samples    *[]struct {
-		ID        *string    `json:"id"`
-		Responses *[]float64 `json:"responses"`
-		Dilution  *float64   `json:"dilution"`
-	} `json:"samples"`
-}
+// The member names of PredictionRequest and PredictionSample, the only
+// ones fastParser knows; they differ from each other ignoring case.
+const (
+	memberConfidence = "confidence"
+	memberSamples    = "samples"
+	memberID         = "id"
+	memberResponses  = "responses"
+	memberDilution   = "dilution"
+)
 
-// fastMemberNames are every member name of PredictionRequest and
-// PredictionSample; they differ from each other ignoring case, so a name
-// spelled exactly as one of them and known to its object's type (the typed
-// decode checks that) is exactly that object's member.
-var fastMemberNames = []string{"confidence", "samples", "id", "responses", "dilution"}
-
-// keysAndLiteralsOK scans raw once, without decoding: every string followed
-// by a colon (a member name) must be one of fastMemberNames, spelled without
-// escapes, and no bare literal other than numbers may occur.
-func keysAndLiteralsOK(raw []byte) bool {
-	for i := 0; i < len(raw); i++ {
-		switch ch := raw[i]; {
-		case ch == '"':
-			start := i + 1
-			escaped := false
-			for i++; i < len(raw) && raw[i] != '"'; i++ {
-				if raw[i] == '\\' {
-					escaped = true
-					i++
-				}
-			}
-			if i >= len(raw) {
-				return false
-			}
-			name := raw[start:i]
-			j := i + 1
-			for j < len(raw) && (raw[j] == ' ' || raw[j] == '\t' || raw[j] == '\n' || raw[j] == '\r') {
-				j++
-			}
-			if j < len(raw) && raw[j] == ':' && (escaped || !knownMember(name)) {
-				return false
-			}
-		case ch == 'n' || ch == 't' || ch == 'f':
-			return false // null, true or false outside a string
-		}
-	}
-	return true
-}
-
-func knownMember(name []byte) bool {
-	for _, k := range fastMemberNames {
-		if string(name) == k {
-			return true
-		}
-	}
-	return false
-}
+var fastMemberNames = []string{memberConfidence, memberSamples, memberID, memberResponses, memberDilution}
 
 // isIdentifier matches the spec's Identifier: ^[A-Za-z0-9][A-Za-z0-9._:-]{0,63}$.
 func isIdentifier(s string) bool {
