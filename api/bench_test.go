@@ -7,8 +7,13 @@ import (
 	"log/slog"
 	"net/http"
 	"net/http/httptest"
+	"os"
+	"strconv"
+	"strings"
+	"sync/atomic"
 	"syscall"
 	"testing"
+	"time"
 
 	"curvekeeper/api"
 	"curvekeeper/store/dbtest"
@@ -75,4 +80,83 @@ func processCPU() int64 {
 		return 0
 	}
 	return ru.Utime.Nano() + ru.Stime.Nano()
+}
+
+// BenchmarkIngestRoute is one POST /v1/runs (1 analyte, 8 levels × 2
+// replicates, fit, checks, commit, with an Idempotency-Key) through the
+// whole chain, 16 at a time as the harness's ingest clients. Besides this
+// process's CPU per run it reports the CPU that PostgreSQL's processes on
+// this machine used per run (pg-cpu-ns/op, from /proc; meaningful when
+// nothing else uses the server meanwhile):
+//
+//	go test ./api -run '^$' -bench IngestRoute -benchmem -benchtime 2000x
+func BenchmarkIngestRoute(b *testing.B) {
+	db := dbtest.NewDB(b)
+	s, err := api.New(api.Config{RateLimit: -1}, db, slog.New(slog.NewJSONHandler(io.Discard, nil)))
+	if err != nil {
+		b.Fatal(err)
+	}
+	e := &env{db: db, srv: httptest.NewServer(s.Handler()), admin: bootstrapSecret}
+	b.Cleanup(e.srv.Close)
+	if _, _, err := db.EnsureToken(b.Context(), "bootstrap-admin", bootstrapSecret, []string{"admin"}); err != nil {
+		b.Fatal(err)
+	}
+	e.method(b, "nitrate-uv", "nitrate")
+	_, inst := e.token(b, "photometer-bench", "runs:write")
+	const runs = 4096
+	bodies := make([][]byte, runs)
+	for i := range bodies {
+		bodies[i] = mustJSON(b, runBody("nitrate-uv", fmt.Sprintf("photometer-%d", i%8),
+			baseTime.Add(time.Duration(i)*time.Second), standards("nitrate", uint64(i))))
+	}
+	h := s.Handler()
+	var seq atomic.Int64
+	b.ReportAllocs()
+	b.SetParallelism(8) // 16 in flight on 2 cores
+	cpu0, pg0 := processCPU(), postgresCPU()
+	b.RunParallel(func(pb *testing.PB) {
+		for pb.Next() {
+			i := seq.Add(1)
+			req := httptest.NewRequest(http.MethodPost, "/v1/runs", bytes.NewReader(bodies[i%runs]))
+			req.Header.Set("Authorization", "Bearer "+inst)
+			req.Header.Set("Content-Type", "application/json")
+			req.Header.Set("Idempotency-Key", fmt.Sprintf("bench-%d", i))
+			w := httptest.NewRecorder()
+			h.ServeHTTP(w, req)
+			if w.Code != http.StatusCreated {
+				b.Fatalf("status %d: %s", w.Code, w.Body.String())
+			}
+		}
+	})
+	b.ReportMetric(float64(processCPU()-cpu0)/float64(b.N), "cpu-ns/op")
+	b.ReportMetric(float64(postgresCPU()-pg0)/float64(b.N), "pg-cpu-ns/op")
+}
+
+// postgresCPU is the user + system CPU time of every process called
+// postgres on this machine, in ns (clock ticks of 10 ms).
+func postgresCPU() int64 {
+	dirs, _ := os.ReadDir("/proc")
+	var ticks int64
+	for _, d := range dirs {
+		if d.Name()[0] < '0' || d.Name()[0] > '9' {
+			continue
+		}
+		raw, err := os.ReadFile("/proc/" + d.Name() + "/stat")
+		if err != nil {
+			continue
+		}
+		s := string(raw)
+		open, close := strings.IndexByte(s, '('), strings.LastIndexByte(s, ')')
+		if open < 0 || close < open || s[open+1:close] != "postgres" {
+			continue
+		}
+		f := strings.Fields(s[close+1:])
+		if len(f) < 13 {
+			continue
+		}
+		ut, _ := strconv.ParseInt(f[11], 10, 64)
+		st, _ := strconv.ParseInt(f[12], 10, 64)
+		ticks += ut + st
+	}
+	return ticks * 10_000_000
 }
