@@ -78,13 +78,13 @@ func (h *harness) ingest(ctx context.Context) error {
 	}
 	stop := h.profile(ctx, "ingest")
 	for round := 0; round < h.cfg.Rounds; round++ {
-		service := load{Workers: ingestConns, Max: h.cfg.IngestMax, Duration: h.cfg.PhaseTime,
+		service := load{Workers: ingestConns, Max: h.cfg.IngestMax, Duration: h.cfg.PhaseTime, ServerPID: h.svc.pid(),
 			Do: func(ctx context.Context, seq int) error {
 				key := fmt.Sprintf("bench-%d-%d", round, seq)
 				_, err := call(ctx, cl, http.MethodPost, url, h.instrument, bodies[seq], http.StatusCreated, "Idempotency-Key", key)
 				return err
 			}}
-		baseline := load{Workers: ingestConns, Max: h.cfg.IngestMax, Duration: h.cfg.PhaseTime,
+		baseline := load{Workers: ingestConns, Max: h.cfg.IngestMax, Duration: h.cfg.PhaseTime, ServerPID: -1,
 			Do: func(ctx context.Context, seq int) error { return insertBaselineRun(ctx, pool, bodies[seq], seq) }}
 		h.progress("ingest round %d/%d", round+1, h.cfg.Rounds)
 		alternate(ctx, round, &svc, service, &base, baseline)
@@ -100,6 +100,7 @@ func (h *harness) ingest(ctx context.Context) error {
 		Target: target{"ratio", ">=", 0.5}}
 	l.Extra = append(append(latencies("", svc), latencies("baseline_", base)...),
 		kv("clients", ingestConns), kv("runs", svc.N), kv("baseline_runs", base.N))
+	l.Extra = append(append(l.Extra, cpuPerRequest("", svc)...), cpuPerRequest("baseline_", base)...)
 	fmt.Fprintln(h.out, l)
 	return nil
 }

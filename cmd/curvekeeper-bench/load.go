@@ -22,6 +22,9 @@ type load struct {
 	Duration time.Duration
 	// Do performs request number seq (0-based, unique across workers).
 	Do func(ctx context.Context, seq int) error
+	// ServerPID is the process serving the load, for its CPU time (see
+	// cpu.go); -1 when the load runs inside the harness, 0 to measure none.
+	ServerPID int
 }
 
 // result is what a load measured.
@@ -31,6 +34,7 @@ type result struct {
 	FirstErr error           // the first failure, for the report
 	Elapsed  time.Duration   // wall time of the load
 	Lat      []time.Duration // latency of every successful request
+	CPU      cpuTimes        // used during the load (see cpu.go); zero unless ServerPID was set
 }
 
 // run drives l and returns what it measured.
@@ -44,6 +48,10 @@ func (l load) run(ctx context.Context) result {
 		wg     sync.WaitGroup
 		errors atomic.Int64
 	)
+	var cpu0 cpuTimes
+	if l.ServerPID != 0 {
+		cpu0 = cpuNow(max(l.ServerPID, 0))
+	}
 	start := time.Now()
 	for w := 0; w < l.Workers; w++ {
 		wg.Add(1)
@@ -81,6 +89,9 @@ func (l load) run(ctx context.Context) result {
 	}
 	wg.Wait()
 	res.Elapsed = time.Since(start)
+	if l.ServerPID != 0 {
+		res.CPU = cpuNow(max(l.ServerPID, 0)).sub(cpu0)
+	}
 	res.N = len(res.Lat)
 	res.Errors = int(errors.Load())
 	return res
@@ -92,6 +103,7 @@ func (r *result) add(o result) {
 	r.Errors += o.Errors
 	r.Elapsed += o.Elapsed
 	r.Lat = append(r.Lat, o.Lat...)
+	r.CPU = r.CPU.plus(o.CPU)
 	if r.FirstErr == nil {
 		r.FirstErr = o.FirstErr
 	}

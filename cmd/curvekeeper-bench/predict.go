@@ -70,12 +70,12 @@ func (h *harness) predict(ctx context.Context) error {
 	var svc, base result
 	stop := h.profile(ctx, "predict")
 	for round := 0; round < h.cfg.Rounds; round++ {
-		service := load{Workers: predictConns, Max: h.cfg.PredictMax, Duration: h.cfg.PhaseTime,
+		service := load{Workers: predictConns, Max: h.cfg.PredictMax, Duration: h.cfg.PhaseTime, ServerPID: h.svc.pid(),
 			Do: func(ctx context.Context, _ int) error {
 				_, err := call(ctx, svcClient, http.MethodPost, h.svc.base+path, h.lims, body, http.StatusOK)
 				return err
 			}}
-		baseline := load{Workers: predictConns, Max: h.cfg.PredictMax, Duration: h.cfg.PhaseTime,
+		baseline := load{Workers: predictConns, Max: h.cfg.PredictMax, Duration: h.cfg.PhaseTime, ServerPID: bare.pid(),
 			Do: func(ctx context.Context, _ int) error {
 				_, err := call(ctx, bareClient, http.MethodPost, bare.base+path, h.lims, body, http.StatusOK)
 				return err
@@ -99,6 +99,7 @@ func (h *harness) predict(ctx context.Context) error {
 		Target: target{"ratio", ">=", 0.5}}
 	l.Extra = append(append(latencies("", svc), latencies("baseline_", base)...),
 		kv("connections", predictConns), kv("body_bytes", len(body)), kv("requests", svc.N))
+	l.Extra = append(append(l.Extra, cpuPerRequest("", svc)...), cpuPerRequest("baseline_", base)...)
 	fmt.Fprintln(h.out, l)
 	fmt.Fprintln(h.out, line{Scenario: "predict_p99", Service: svc.percentile(0.99), Baseline: base.percentile(0.99),
 		Unit: "ms", Target: target{"service", "<=", 10}, Extra: []string{kv("connections", predictConns)}})
