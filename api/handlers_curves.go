@@ -99,7 +99,7 @@ func (s *Server) CreatePredictions(ctx context.Context, req oapi.CreatePredictio
 	if err != nil {
 		return nil, err
 	}
-	return oapi.CreatePredictions200JSONResponse(out), nil
+	return (*predictionJSONResponse)(&out), nil
 }
 
 // predict quantifies samples against curve id; nothing is stored.

@@ -173,5 +173,5 @@ func (s *Server) CreateInstrumentPredictions(ctx context.Context, req oapi.Creat
 	if err != nil {
 		return nil, err
 	}
-	return oapi.CreateInstrumentPredictions200JSONResponse(out), nil
+	return (*predictionJSONResponse)(&out), nil
 }
