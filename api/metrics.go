@@ -2,6 +2,7 @@ package api
 
 import (
 	"strconv"
+	"sync"
 	"time"
 
 	"github.com/labstack/echo/v4"
@@ -15,6 +16,21 @@ type metrics struct {
 	registry *prometheus.Registry
 	requests *prometheus.CounterVec
 	duration *prometheus.HistogramVec
+
+	// series caches the two collectors of each (method, route, status):
+	// WithLabelValues hashes its labels on every call, and the set of
+	// routes and statuses is small and fixed.
+	series sync.Map // seriesKey → *seriesPair
+}
+
+type seriesKey struct {
+	method, route string
+	status        int
+}
+
+type seriesPair struct {
+	requests prometheus.Counter
+	duration prometheus.Observer
 }
 
 func newMetrics() *metrics {
@@ -48,9 +64,18 @@ func (m *metrics) middleware(next echo.HandlerFunc) echo.HandlerFunc {
 		if route == "" {
 			route = "unmatched"
 		}
-		status := strconv.Itoa(c.Response().Status)
-		m.requests.WithLabelValues(c.Request().Method, route, status).Inc()
-		m.duration.WithLabelValues(c.Request().Method, route, status).Observe(time.Since(start).Seconds())
+		k := seriesKey{c.Request().Method, route, c.Response().Status}
+		v, ok := m.series.Load(k)
+		if !ok {
+			status := strconv.Itoa(k.status)
+			v, _ = m.series.LoadOrStore(k, &seriesPair{
+				requests: m.requests.WithLabelValues(k.method, route, status),
+				duration: m.duration.WithLabelValues(k.method, route, status),
+			})
+		}
+		p := v.(*seriesPair)
+		p.requests.Inc()
+		p.duration.Observe(time.Since(start).Seconds())
 		return nil
 	}
 }

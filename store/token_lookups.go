@@ -4,6 +4,8 @@ import (
 	"context"
 	"sync"
 	"time"
+
+	"github.com/jackc/pgx/v5"
 )
 
 // Token lookups run on every authenticated request, so under load they are
@@ -107,6 +109,12 @@ SELECT q.i, t.id, t.name, t.scopes, t.hash, t.revoked_at,
 FROM unnest($1::bytea[], $2::uuid[]) WITH ORDINALITY AS q(hash, curve, i)
 JOIN tokens t ON t.hash = q.hash`
 
+// sqlTokenLookupOne is sqlTokenLookups for a single question.
+const sqlTokenLookupOne = `
+SELECT 1::bigint, t.id, t.name, t.scopes, t.hash, t.revoked_at,
+       (SELECT c.status FROM curves c WHERE c.id = $2::uuid)
+FROM tokens t WHERE t.hash = $1`
+
 // answer runs one statement for batch, asking each distinct question once.
 func (l *tokenLookups) answer(batch []*tokenLookup) {
 	type key struct{ hash, curve string }
@@ -134,7 +142,17 @@ func (l *tokenLookups) answer(batch []*tokenLookup) {
 	ctx, cancel := context.WithTimeout(context.Background(), l.timeout)
 	defer cancel()
 	err := func() error {
-		rows, err := l.db.Pool.Query(ctx, sqlTokenLookups, hashes, curves)
+		var (
+			rows pgx.Rows
+			err  error
+		)
+		if len(hashes) == 1 {
+			// The usual batch (one client's token, one curve): scalar
+			// parameters encode and plan cheaper than arrays.
+			rows, err = l.db.Pool.Query(ctx, sqlTokenLookupOne, hashes[0], curves[0])
+		} else {
+			rows, err = l.db.Pool.Query(ctx, sqlTokenLookups, hashes, curves)
+		}
 		if err != nil {
 			return err
 		}
