@@ -2,10 +2,9 @@ package calib
 
 import (
 	"math"
-	"sync"
 
 	"gonum.org/v1/gonum/blas/blas64"
-	"gonum.org/v1/gonum/mat"
+	"gonum.org/v1/gonum/lapack/lapack64"
 )
 
 // lsq is a weighted least-squares solution.
@@ -46,7 +45,7 @@ func basis(m Model, x float64, v []float64) {
 	}
 }
 
-// design is one Householder QR factorisation (gonum mat.QR) of the
+// design is one Householder QR factorisation (gonum's LAPACK Dgeqrf) of the
 // weighted, column-scaled, augmented matrix [√W·X·D | √W·y·c]. D and c are
 // powers of two that bring every column to unit norm order (exact, and R
 // stays well scaled). Because Householder QR treats the columns left to
@@ -55,48 +54,44 @@ func basis(m Model, x float64, v []float64) {
 // [1, x, x²] serves the line and the quadratic, and one of [x, 1, x²] the
 // origin model, the line and the quadratic (for Mandel's test and the
 // intercept test).
+//
+// Only R̃ is needed (rank is judged from its diagonal in solve), so the
+// factorisation is called on the caller's workspace directly rather than
+// through mat.QR, which would also estimate a condition number and
+// allocate on every call.
 type design struct {
 	n, k    int       // readings; regressor columns (the y column is k)
 	pow     [3]int    // power of x in each regressor column
-	data    []float64 // the scaled n×(k+1) matrix, row-major (in ws until release)
+	data    []float64 // the scaled n×(k+1) matrix, row-major (kept: solve reads its rows)
 	scale   [4]float64
 	r       [4][4]float64 // R̃, (k+1)×(k+1)
 	x, y, w []float64
-	ws      *qrWork
+	scratch []float64 // n residuals for fitSSR
 }
 
-// qrWork is the reusable workspace of one factorisation: the matrix handed
-// to mat.QR, the QR itself and the R̃ it is read into. Fits are short and
-// frequent, so the workspace is pooled rather than allocated per fit.
-type qrWork struct {
-	qr    mat.QR
-	a, rt mat.Dense
-	data  []float64
+// designLen is the length of the workspace init needs for n readings and k
+// regressor columns: the scaled matrix, its copy that Dgeqrf overwrites,
+// Dgeqrf's reflector scales and work, and n residuals for fitSSR.
+func designLen(n, k int) int {
+	c := k + 1
+	return 2*n*c + 2*c + n
 }
 
-var qrPool = sync.Pool{New: func() any { return new(qrWork) }}
-
-// newDesign factorises [√W·X | √W·y] for regressor columns with the given
-// powers of x. Preconditions: n > 0, w > 0, every entry finite. The caller
-// calls release when done with the design.
-func newDesign(pow []int, x, y, w []float64) (*design, error) {
-	d := new(design)
-	if err := d.init(pow, x, y, w); err != nil {
-		return nil, err
-	}
-	return d, nil
-}
-
-// init is newDesign into a caller-provided design (which may live on the
-// caller's stack).
-func (d *design) init(pow []int, x, y, w []float64) error {
+// init factorises [√W·X | √W·y] for regressor columns with the given
+// powers of x into d, using buf (of length designLen, or nil to allocate)
+// as workspace; d.data points into buf afterwards. Preconditions:
+// n ≥ len(pow)+1, w > 0, every entry finite.
+func (d *design) init(pow []int, x, y, w, buf []float64) error {
 	n, k := len(x), len(pow)
 	c := k + 1
-	ws := qrPool.Get().(*qrWork)
-	if cap(ws.data) < n*c {
-		ws.data = make([]float64, n*c)
+	if len(buf) < designLen(n, k) {
+		buf = make([]float64, designLen(n, k))
 	}
-	*d = design{n: n, k: k, x: x, y: y, w: w, data: ws.data[:n*c], ws: ws}
+	*d = design{n: n, k: k, x: x, y: y, w: w, data: buf[: n*c : n*c]}
+	fact := buf[n*c : 2*n*c : 2*n*c]
+	tau := buf[2*n*c : 2*n*c+min(n, c) : 2*n*c+min(n, c)]
+	work := buf[2*n*c+c : 2*n*c+2*c : 2*n*c+2*c]
+	d.scratch = buf[2*n*c+2*c : 2*n*c+2*c+n : 2*n*c+2*c+n]
 	copy(d.pow[:], pow)
 	var norms [4]float64
 	for i := range x {
@@ -119,7 +114,6 @@ func (d *design) init(pow []int, x, y, w []float64) error {
 	}
 	for j := 0; j < c; j++ {
 		if math.IsNaN(norms[j]) || math.IsInf(norms[j], 0) {
-			d.release()
 			return inputErr("points", "values are outside the numerically usable range")
 		}
 		e := 0
@@ -134,26 +128,14 @@ func (d *design) init(pow []int, x, y, w []float64) error {
 			row[j] *= d.scale[j]
 		}
 	}
-	ws.a.SetRawMatrix(blas64.General{Rows: n, Cols: c, Stride: c, Data: d.data})
-	ws.qr.Factorize(&ws.a)
-	ws.rt.Reset()
-	ws.qr.RTo(&ws.rt)
-	raw := ws.rt.RawMatrix()
+	copy(fact, d.data)
+	lapack64.Geqrf(blas64.General{Rows: n, Cols: c, Stride: c, Data: fact}, tau, work, len(work))
 	for j := 0; j < c && j < n; j++ {
 		for l := j; l < c; l++ {
-			d.r[j][l] = raw.Data[j*raw.Stride+l]
+			d.r[j][l] = fact[j*c+l]
 		}
 	}
 	return nil
-}
-
-// release returns the design's workspace to the pool; d.data is not valid
-// afterwards.
-func (d *design) release() {
-	if d.ws != nil {
-		qrPool.Put(d.ws)
-		d.ws, d.data = nil, nil
-	}
 }
 
 // solveLSQ solves min Σwᵢ(yᵢ − Xᵢβ)² for the model by QR (see design and
@@ -164,11 +146,10 @@ func solveLSQ(model Model, x, y, w []float64) (lsq, error) {
 	if len(x) <= nParams(model) {
 		return lsq{}, inputErr("points", "%d readings for %d coefficients", len(x), nParams(model))
 	}
-	d, err := newDesign(powers(model), x, y, w)
-	if err != nil {
+	var d design
+	if err := d.init(powers(model), x, y, w, nil); err != nil {
 		return lsq{}, err
 	}
-	defer d.release()
 	return d.fit(model)
 }
 
@@ -196,7 +177,8 @@ func (d *design) fit(model Model) (lsq, error) {
 
 // fitSSR is fit for a caller that needs only Σw e² (Mandel's test): the
 // same arithmetic, so the same value, without the covariance, fitted values
-// and leverages and without allocating.
+// and leverages and without allocating (the residuals go to the design's
+// scratch).
 func (d *design) fitSSR(model Model) (float64, error) {
 	var beta [3]float64
 	out := lsq{beta: beta[:nParams(model)]}
@@ -262,11 +244,17 @@ func (d *design) solve(model Model, out *lsq, full bool) error {
 		l := perm[j]
 		beta[j] = bc[l] * d.scale[l] / d.scale[d.k]
 	}
+	x, y, w := d.x[:n], d.y[:n], d.w[:n]
+	e := d.scratch[:n]
+	if full {
+		e = out.resid[:n]
+	}
 	// One refinement step: g = A_pᵀ(√W·e·c), u = R⁻ᵀg, δ' = R⁻¹u.
+	residualsDD(model, beta, x, y, e)
 	var g [3]float64
+	yc := d.scale[d.k]
 	for i := 0; i < n; i++ {
-		e := residualDD(model, beta, d.x[i], d.y[i])
-		re := math.Sqrt(d.w[i]) * e * d.scale[d.k]
+		re := math.Sqrt(w[i]) * e[i] * yc
 		row := d.data[i*c : i*c+p]
 		for l := range row {
 			g[l] += row[l] * re
@@ -303,39 +291,40 @@ func (d *design) solve(model Model, out *lsq, full bool) error {
 			}
 		}
 	}
+	residualsDD(model, beta, x, y, e)
 	var sumw, swy, ssr float64
 	for i := 0; i < n; i++ {
-		e := residualDD(model, beta, d.x[i], d.y[i])
-		ssr += d.w[i] * e * e
-		sumw += d.w[i]
-		swy += d.w[i] * d.y[i]
-		if !full {
-			continue
-		}
-		out.fitted[i] = d.y[i] - e
-		out.resid[i] = e
-		row := d.data[i*c : i*c+p]
-		var h float64
-		for l := 0; l < p; l++ {
-			var s float64
-			for m := 0; m <= l; m++ {
-				s += row[m] * rinv[m][l]
+		ssr += w[i] * e[i] * e[i]
+		sumw += w[i]
+		swy += w[i] * y[i]
+	}
+	if full {
+		fitted, lev := out.fitted[:n], out.lev[:n]
+		for i := 0; i < n; i++ {
+			fitted[i] = y[i] - e[i]
+			row := d.data[i*c : i*c+p]
+			var h float64
+			for l := 0; l < p; l++ {
+				var s float64
+				for m := 0; m <= l; m++ {
+					s += row[m] * rinv[m][l]
+				}
+				h += s * s
 			}
-			h += s * s
+			lev[i] = h
 		}
-		out.lev[i] = h
 	}
 	out.ssr = ssr
 	out.s = math.Sqrt(ssr / float64(out.df))
 	var tss float64
 	if model == LinearOrigin {
 		for i := 0; i < n; i++ {
-			tss += d.w[i] * d.y[i] * d.y[i]
+			tss += w[i] * y[i] * y[i]
 		}
 	} else {
 		my := swy / sumw
 		for i := 0; i < n; i++ {
-			tss += d.w[i] * (d.y[i] - my) * (d.y[i] - my)
+			tss += w[i] * (y[i] - my) * (y[i] - my)
 		}
 	}
 	if !(tss > 0) || math.IsInf(tss, 0) || math.IsInf(ssr, 0) || math.IsNaN(ssr) {
@@ -345,26 +334,39 @@ func (d *design) solve(model Model, out *lsq, full bool) error {
 	return nil
 }
 
-// residualDD returns y − Σβⱼvⱼ(x) accumulated in double-double arithmetic
-// (products split exactly with FMA, sums with TwoSum), so that the residual
-// of a near-exact fit keeps its digits.
-func residualDD(model Model, beta []float64, x, y float64) float64 {
-	hi, lo := y, 0.0
+// residualsDD sets e[i] = y[i] − Σβⱼvⱼ(x[i]) accumulated in double-double
+// arithmetic (products split exactly with FMA, sums with TwoSum), so that
+// the residual of a near-exact fit keeps its digits. The model is resolved
+// once for the whole loop.
+func residualsDD(model Model, beta, x, y, e []float64) {
+	x, y = x[:len(e)], y[:len(e)]
 	switch model {
 	case LinearOrigin:
-		hi, lo = ddSub(hi, lo, beta[0], x)
+		b1 := beta[0]
+		for i := range e {
+			hi, lo := ddSub(y[i], 0, b1, x[i])
+			e[i] = hi + lo
+		}
 	case Quadratic:
-		x2 := x * x
-		x2e := math.FMA(x, x, -x2) // x² = x2 + x2e exactly
-		hi, lo = ddSub(hi, lo, beta[0], 1)
-		hi, lo = ddSub(hi, lo, beta[1], x)
-		hi, lo = ddSub(hi, lo, beta[2], x2)
-		hi, lo = ddSub(hi, lo, beta[2], x2e)
+		b0, b1, b2 := beta[0], beta[1], beta[2]
+		for i := range e {
+			xi := x[i]
+			x2 := xi * xi
+			x2e := math.FMA(xi, xi, -x2) // x² = x2 + x2e exactly
+			hi, lo := ddSub1(y[i], 0, b0)
+			hi, lo = ddSub(hi, lo, b1, xi)
+			hi, lo = ddSub(hi, lo, b2, x2)
+			hi, lo = ddSub(hi, lo, b2, x2e)
+			e[i] = hi + lo
+		}
 	default:
-		hi, lo = ddSub(hi, lo, beta[0], 1)
-		hi, lo = ddSub(hi, lo, beta[1], x)
+		b0, b1 := beta[0], beta[1]
+		for i := range e {
+			hi, lo := ddSub1(y[i], 0, b0)
+			hi, lo = ddSub(hi, lo, b1, x[i])
+			e[i] = hi + lo
+		}
 	}
-	return hi + lo
 }
 
 // ddSub returns (hi, lo) − b·v in double-double arithmetic: the product is
@@ -375,5 +377,16 @@ func ddSub(hi, lo, b, v float64) (float64, float64) {
 	s := hi - p
 	bb := s - hi
 	e := (hi - (s - bb)) + (-p - bb) // TwoSum(hi, −p) error
+	return s, lo + (e - pe)
+}
+
+// ddSub1 is ddSub(hi, lo, b, 1) without the FMA: b·1 = b exactly, and the
+// product's error term FMA(b, 1, −b) equals b − b (+0, or NaN when b is
+// infinite or NaN).
+func ddSub1(hi, lo, b float64) (float64, float64) {
+	pe := b - b
+	s := hi - b
+	bb := s - hi
+	e := (hi - (s - bb)) + (-b - bb)
 	return s, lo + (e - pe)
 }

@@ -52,7 +52,6 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	if err != nil {
 		return nil, err
 	}
-	defer des.release()
 	n, p := len(d.x), f.p
 	r := &Report{
 		Model:              opt.Model,
@@ -137,7 +136,6 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 // (columns [1, x, x²], or [x, 1, x²] for the origin model), and fits the
 // model from it. If the extra columns are not usable (x² overflows), the
 // model's own columns are factorised and those checks are not computed.
-// The caller releases des when it no longer needs it (on success only).
 func fitDesign(des *design, m Model, d *dataset, w []float64) (lsq, error) {
 	n, k := len(d.x), len(d.levels)
 	var ext []int
@@ -153,18 +151,15 @@ func fitDesign(des *design, m Model, d *dataset, w []float64) (lsq, error) {
 	default:
 		ext = powers(m)
 	}
-	err := des.init(ext, d.x, d.y, w)
+	buf := make([]float64, designLen(n, len(ext)))
+	err := des.init(ext, d.x, d.y, w, buf)
 	if err != nil && len(ext) > nParams(m) {
-		err = des.init(powers(m), d.x, d.y, w)
+		err = des.init(powers(m), d.x, d.y, w, buf)
 	}
 	if err != nil {
 		return lsq{}, err
 	}
-	f, err := des.fit(m)
-	if err != nil {
-		des.release()
-	}
-	return f, err
+	return des.fit(m)
 }
 
 // backCalc reads a point's concentration back from the curve and sets its
