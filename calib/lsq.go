@@ -165,8 +165,20 @@ func solveLSQ(model Model, x, y, w []float64) (lsq, error) {
 // A numerically rank-deficient R (|R_jj| ≤ 1e-11·max|R_ll|) is an
 // *InputError.
 func (d *design) fit(model Model) (lsq, error) {
+	return d.fitInto(model, nil)
+}
+
+// fitLen is the length of the arrays of a solution with p coefficients
+// and n readings: β, (XᵀWX)⁻¹, fitted values, residuals and leverages.
+func fitLen(p, n int) int { return p + p*p + 3*n }
+
+// fitInto is fit with the solution's arrays in buf (of length fitLen, or
+// nil to allocate).
+func (d *design) fitInto(model Model, buf []float64) (lsq, error) {
 	p, n := nParams(model), d.n
-	buf := make([]float64, p+p*p+3*n)
+	if len(buf) < fitLen(p, n) {
+		buf = make([]float64, fitLen(p, n))
+	}
 	out := lsq{beta: buf[:p:p], xtwx: buf[p : p+p*p : p+p*p]}
 	out.fitted, out.resid, out.lev = buf[p+p*p:p+p*p+n:p+p*p+n], buf[p+p*p+n:p+p*p+2*n:p+p*p+2*n], buf[p+p*p+2*n:]
 	if err := d.solve(model, &out, true); err != nil {

@@ -7,12 +7,14 @@ import (
 	"sync/atomic"
 )
 
-// cautions are carried by every Report and every Prediction.
-var cautions = []string{
+// cautionTexts are carried by every Report and every Prediction.
+var cautionTexts = [...]string{
 	"Acceptance is computed against the configured criteria; unless the laboratory configured its own, these are defaults drawn from published guidance (ICH M10, ICH Q2(R2), ISO 8466-1, ISO 11843-2, US EPA SW-846 Method 8000D).",
 	"The laboratory's accreditation, its regulator and its method SOP take precedence over these criteria and over any result computed here.",
 	"Results need review by a qualified person before they are released.",
 }
+
+var cautions = cautionTexts[:]
 
 // Cautions returns the cautions that accompany every fit and every reported
 // concentration. The slice is a fresh copy.
@@ -53,13 +55,14 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		return nil, err
 	}
 	n, p := len(d.x), f.p
-	r := &Report{
+	m := new(reportMem)
+	r := &m.r
+	*r = Report{
 		Model:              opt.Model,
 		Weighting:          wp.scheme,
 		WeightingRequested: opt.Weighting,
 		WeightCandidates:   scores,
 		WeightConvention:   weightConvention(n),
-		ZeroHandling:       wp.zero,
 		WeightScale:        wscale,
 		WeightFloor:        wp.floor,
 		Variance:           wp.vm,
@@ -70,17 +73,17 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		Levels:             len(d.levels),
 		Confidence:         opt.Confidence,
 		Range:              Range{Low: d.levels[0].x, High: d.levels[len(d.levels)-1].x},
-		Cautions:           Cautions(),
 		Engine:             EngineVersion,
 	}
-	r.Coefficients = f.beta
-	seCov := make([]float64, p+p*p)
-	r.StandardErrors = seCov[:p:p]
-	r.Covariance = make([][]float64, p)
-	covBuf := seCov[p:]
+	m.cautions = cautionTexts
+	r.Cautions = m.cautions[:]
+	r.Coefficients = m.coef[:p:p]
+	copy(r.Coefficients, f.beta)
+	r.StandardErrors = m.se[:p:p]
+	r.Covariance = m.covRows[:p:p]
 	s2 := f.s * f.s
 	for j := 0; j < p; j++ {
-		r.Covariance[j] = covBuf[j*p : (j+1)*p : (j+1)*p]
+		r.Covariance[j] = m.cov[j*p : (j+1)*p : (j+1)*p]
 		for k := 0; k < p; k++ {
 			r.Covariance[j][k] = s2 * f.xtwx[j*p+k]
 		}
@@ -122,13 +125,63 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 			pr.CooksDistance = pr.Studentized * pr.Studentized * f.lev[k] / (float64(p) * (1 - f.lev[k]))
 		}
 	}
-	r.Limits = computeLimits(r, f)
-	r.Checks = computeChecks(r, d, &des, f, w, opt.Policy)
+	dt := details{t: newText()}
+	defer dt.t.free()
+	start := len(dt.t.b)
+	wp.zeroText(dt.t)
+	dt.keep(&r.ZeroHandling, start, len(dt.t.b))
+	start = len(dt.t.b)
+	r.Limits = computeLimits(r, f, dt.t)
+	if len(dt.t.b) > start {
+		dt.keep(&r.Limits.Detail, start, len(dt.t.b))
+	}
+	r.Checks = computeChecks(r, d, &des, f, w, opt.Policy, m.checks[:0], &dt)
+	dt.done()
 	r.Verdict = verdict(r.Checks)
 	if !r.finite() {
 		return nil, inputErr("points", "values are outside the numerically usable range")
 	}
 	return r, nil
+}
+
+// reportMem is a Report together with the fixed-size storage its slices
+// point to, so that build makes them in one allocation.
+type reportMem struct {
+	r        Report
+	coef, se [3]float64
+	cov      [9]float64
+	covRows  [3][]float64
+	checks   [10]Check
+	cautions [len(cautionTexts)]string
+}
+
+// details builds the Detail texts of one report in one text and turns them
+// into strings with a single allocation: a writer appends its text, keep
+// records the field it belongs to and where it lies, and done sets every
+// kept field to its part of one string.
+type details struct {
+	t     *text
+	n     int
+	field [16]*string
+	span  [16][2]int
+}
+
+// keep records that t.b[a:b] is the text of *field.
+func (d *details) keep(field *string, a, b int) {
+	if d.n == len(d.field) {
+		*field = string(d.t.b[a:b])
+		return
+	}
+	d.field[d.n], d.span[d.n] = field, [2]int{a, b}
+	d.n++
+}
+
+// done sets every kept field.
+func (d *details) done() {
+	s := string(d.t.b)
+	for i := 0; i < d.n; i++ {
+		*d.field[i] = s[d.span[i][0]:d.span[i][1]]
+	}
 }
 
 // fitDesign factorises once for the model and, where the data allow, the
@@ -151,7 +204,7 @@ func fitDesign(des *design, m Model, d *dataset, w []float64) (lsq, error) {
 	default:
 		ext = powers(m)
 	}
-	buf := make([]float64, designLen(n, len(ext)))
+	buf := d.take(designLen(n, len(ext)))
 	err := des.init(ext, d.x, d.y, w, buf)
 	if err != nil && len(ext) > nParams(m) {
 		err = des.init(powers(m), d.x, d.y, w, buf)
@@ -159,7 +212,7 @@ func fitDesign(des *design, m Model, d *dataset, w []float64) (lsq, error) {
 	if err != nil {
 		return lsq{}, err
 	}
-	return des.fit(m)
+	return des.fitInto(m, d.take(fitLen(nParams(m), n)))
 }
 
 // backCalc reads a point's concentration back from the curve and sets its
@@ -269,7 +322,10 @@ func FailedReport(points []Point, opt Options, cause error) *Report {
 	for _, name := range checkNames {
 		c := Check{Name: name, Source: checkSource(name, opt.Model), Mandatory: opt.Policy.mandatory(name)}
 		if name == CheckMinLevels {
-			c = minLevelsCheck(xs, opt.Policy)
+			t := newText()
+			c = minLevelsCheck(xs, opt.Policy, t)
+			c.Detail = t.str()
+			t.free()
 			c.Mandatory = opt.Policy.mandatory(name)
 		} else {
 			c.Detail = "Not computed: " + why + "."
