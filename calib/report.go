@@ -412,8 +412,8 @@ func (t *text) free() { textPool.Put(t) }
 
 func (t *text) s(v string) *text { t.b = append(t.b, v...); return t }
 
-// g appends v with six significant digits.
-func (t *text) g(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 6, 64); return t }
+// g appends v with six significant digits (as fmtG).
+func (t *text) g(v float64) *text { t.b = appendG6(t.b, v); return t }
 
 // gc appends v exactly as g does, from a small cache: for the values that
 // recur run after run (policy thresholds and t and F quantiles), whose
@@ -432,7 +432,19 @@ func cachedG(v float64) string {
 // g10 appends v with ten significant digits.
 func (t *text) g10(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 10, 64); return t }
 
-func (t *text) i(v int) *text { t.b = strconv.AppendInt(t.b, int64(v), 10); return t }
+// i appends v in decimal (as strconv.Itoa); the counts in the texts are
+// mostly below 100, which take a short path.
+func (t *text) i(v int) *text {
+	if uint(v) < 100 {
+		if v >= 10 {
+			t.b = append(t.b, byte('0'+v/10))
+		}
+		t.b = append(t.b, byte('0'+v%10))
+		return t
+	}
+	t.b = strconv.AppendInt(t.b, int64(v), 10)
+	return t
+}
 
 // point names a reading for QA staff: its level label, index and x.
 func (t *text) point(p *PointResult, i int) *text {
