@@ -254,11 +254,18 @@ func findLabel(list []labelX, label string, x float64) ([]labelX, float64, bool)
 		return list, list[k].x, true
 	}
 	for _, e := range list {
-		if e.label == label {
+		if sameLabel(e.label, label) {
 			return list, e.x, true
 		}
 	}
 	return append(list, labelX{label, x}), x, false
+}
+
+// sameLabel is a == b for non-empty level labels, which usually differ in
+// their last character ("L1", "L2", ...): that byte is compared first,
+// inline, before the full comparison.
+func sameLabel(a, b string) bool {
+	return len(a) == len(b) && a[len(a)-1] == b[len(b)-1] && a == b
 }
 
 // groupLevels groups the fitted readings by exact nominal concentration.
