@@ -97,13 +97,12 @@ func (d *design) init(pow []int, x, y, w, buf []float64) error {
 	for i := range x {
 		sw := math.Sqrt(w[i])
 		row := d.data[i*c : i*c+c]
+		xi := x[i]
+		xp := [3]float64{1, xi, xi * xi} // x to the power 0, 1, 2
 		for j, pw := range pow {
 			a := sw
-			switch pw {
-			case 1:
-				a *= x[i]
-			case 2:
-				a *= x[i] * x[i]
+			if pw > 0 {
+				a *= xp[pw]
 			}
 			row[j] = a
 			norms[j] += a * a
@@ -122,13 +121,14 @@ func (d *design) init(pow []int, x, y, w, buf []float64) error {
 		}
 		d.scale[j] = math.Ldexp(1, -e)
 	}
-	for i := 0; i < n; i++ {
-		row := d.data[i*c : i*c+c]
-		for j := range row {
-			row[j] *= d.scale[j]
+	sc := d.scale[:c]
+	for o := 0; o < n*c; o += c {
+		row, frow := d.data[o:o+c], fact[o:o+c]
+		for j, s := range sc {
+			v := row[j] * s
+			row[j], frow[j] = v, v
 		}
 	}
-	copy(fact, d.data)
 	lapack64.Geqrf(blas64.General{Rows: n, Cols: c, Stride: c, Data: fact}, tau, work, len(work))
 	for j := 0; j < c && j < n; j++ {
 		for l := j; l < c; l++ {
@@ -263,13 +263,30 @@ func (d *design) solve(model Model, out *lsq, full bool) error {
 	}
 	// One refinement step: g = A_pᵀ(√W·e·c), u = R⁻ᵀg, δ' = R⁻¹u.
 	residualsDD(model, beta, x, y, e)
+	// g is accumulated reading by reading, the same sums in the same order
+	// for every p; p = 2 and 3 share a loop over rows of fixed length three
+	// (each row has c ≥ p+1 ≥ 3 entries).
 	var g [3]float64
 	yc := d.scale[d.k]
-	for i := 0; i < n; i++ {
-		re := math.Sqrt(w[i]) * e[i] * yc
-		row := d.data[i*c : i*c+p]
-		for l := range row {
-			g[l] += row[l] * re
+	data := d.data[:n*c]
+	switch p {
+	case 2, 3:
+		for i, o := 0, 0; i < n; i, o = i+1, o+c {
+			re := math.Sqrt(w[i]) * e[i] * yc
+			row := data[o : o+3 : o+3]
+			g[0] += row[0] * re
+			g[1] += row[1] * re
+			if p == 3 {
+				g[2] += row[2] * re
+			}
+		}
+	default:
+		for i := 0; i < n; i++ {
+			re := math.Sqrt(w[i]) * e[i] * yc
+			row := data[i*c : i*c+p]
+			for l := range row {
+				g[l] += row[l] * re
+			}
 		}
 	}
 	var u [3]float64
@@ -314,16 +331,43 @@ func (d *design) solve(model Model, out *lsq, full bool) error {
 		fitted, lev := out.fitted[:n], out.lev[:n]
 		for i := 0; i < n; i++ {
 			fitted[i] = y[i] - e[i]
-			row := d.data[i*c : i*c+p]
-			var h float64
-			for l := 0; l < p; l++ {
-				var s float64
-				for m := 0; m <= l; m++ {
-					s += row[m] * rinv[m][l]
+		}
+		// hᵢ = Σ_l sₗ², sₗ = Σ_{m≤l} row[m]·R⁻¹[m][l]. The loops for p = 2
+		// and 3 write the sums out; starting them at their first term
+		// instead of at 0 can only turn a −0 into +0 in sₗ, which sₗ² does
+		// not see.
+		switch p {
+		case 2, 3:
+			i00, i01, i11 := rinv[0][0], rinv[0][1], rinv[1][1]
+			i02, i12, i22 := rinv[0][2], rinv[1][2], rinv[2][2]
+			for i, o := 0, 0; i < n; i, o = i+1, o+c {
+				row := data[o : o+3 : o+3]
+				s0 := row[0] * i00
+				s1 := row[0] * i01
+				s1 += row[1] * i11
+				h := s0 * s0
+				h += s1 * s1
+				if p == 3 {
+					s2 := row[0] * i02
+					s2 += row[1] * i12
+					s2 += row[2] * i22
+					h += s2 * s2
 				}
-				h += s * s
+				lev[i] = h
 			}
-			lev[i] = h
+		default:
+			for i := 0; i < n; i++ {
+				row := data[i*c : i*c+p]
+				var h float64
+				for l := 0; l < p; l++ {
+					var s float64
+					for m := 0; m <= l; m++ {
+						s += row[m] * rinv[m][l]
+					}
+					h += s * s
+				}
+				lev[i] = h
+			}
 		}
 	}
 	out.ssr = ssr

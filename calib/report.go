@@ -19,7 +19,9 @@ var cautions = cautionTexts[:]
 // Cautions returns the cautions that accompany every fit and every reported
 // concentration. The slice is a fresh copy.
 func Cautions() []string {
-	return append([]string(nil), cautions...)
+	c := make([]string, len(cautions))
+	copy(c, cautions)
+	return c
 }
 
 // weightConvention returns the Report's WeightConvention for n readings;
@@ -107,11 +109,13 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	for i, pt := range points {
 		pr := &r.Points[i]
 		pr.Level, pr.X, pr.Y, pr.Excluded = pt.Level, pt.X, pt.Y, pt.Excluded
-		basis(r.Model, pt.X, v[:])
-		for j := 0; j < p; j++ {
-			pr.Fitted += r.Coefficients[j] * v[j]
+		if pt.Excluded { // the fitted readings get the solution's values below
+			basis(r.Model, pt.X, v[:])
+			for j := 0; j < p; j++ {
+				pr.Fitted += r.Coefficients[j] * v[j]
+			}
+			pr.Residual = pt.Y - pr.Fitted
 		}
-		pr.Residual = pt.Y - pr.Fitted
 		r.backCalc(pr)
 	}
 	for k, i := range d.idx {
