@@ -53,44 +53,48 @@ func computeChecks(r *Report, d *dataset, des *design, f lsq, w []float64, pol P
 	}
 	t := dt.t
 	first := len(checks)
-	// spans[i] is the part of t holding the Detail of check first+i.
-	var spans [16][2]int
+	// ends[i] is where the Detail text of check first+i ends in t (a check
+	// that is not computed writes none: its Detail is set directly).
+	var ends [len(checkNames)]int
 	start := len(t.b)
-	add := func(c Check) {
+	checks = append(checks, minLevelsCheck(nz, pol, t))
+	ends[0] = len(t.b)
+	checks = append(checks, mandelCheck(r, d, des, f, pol, t))
+	ends[1] = len(t.b)
+	checks = append(checks, lackOfFitCheck(d, f, w, pol, t))
+	ends[2] = len(t.b)
+	checks = append(checks, homoscedasticityCheck(r, d, pol, t))
+	ends[3] = len(t.b)
+	checks = append(checks, backCalcCheck(r, d, pol, t))
+	ends[4] = len(t.b)
+	checks = append(checks, rSquaredCheck(r, pol, t))
+	ends[5] = len(t.b)
+	checks = append(checks, rseCheck(r, d, pol, t))
+	ends[6] = len(t.b)
+	checks = append(checks, interceptCheck(r, des, f, pol, t))
+	ends[7] = len(t.b)
+	checks = append(checks, runsCheck(r, d, f, pol, t))
+	ends[8] = len(t.b)
+	checks = append(checks, outlierCheck(r, d, pol, t))
+	ends[9] = len(t.b)
+	for k := range ends {
+		c := &checks[first+k]
 		c.Source = checkSource(c.Name, r.Model)
 		c.Mandatory = pol.mandatory(c.Name)
+		if ends[k] > start {
+			if c.Computed {
+				dt.keep(&c.Detail, start, ends[k])
+			} else {
+				c.Detail = string(t.b[start:ends[k]])
+			}
+		}
 		if !c.Computed {
 			c.Passed = false
 			if c.Mandatory {
-				if len(t.b) > start {
-					t.s(mandatoryNote)
-				} else {
-					c.Detail += mandatoryNote
-				}
+				c.Detail += mandatoryNote
 			}
 		}
-		if k := len(checks) - first; k < len(spans) {
-			spans[k] = [2]int{start, len(t.b)}
-		} else if len(t.b) > start {
-			c.Detail = string(t.b[start:])
-		}
-		checks = append(checks, c)
-		start = len(t.b)
-	}
-	add(minLevelsCheck(nz, pol, t))
-	add(mandelCheck(r, d, des, f, pol, t))
-	add(lackOfFitCheck(d, f, w, pol, t))
-	add(homoscedasticityCheck(r, d, pol, t))
-	add(backCalcCheck(r, d, pol, t))
-	add(rSquaredCheck(r, pol, t))
-	add(rseCheck(r, d, pol, t))
-	add(interceptCheck(r, des, f, pol, t))
-	add(runsCheck(r, d, f, pol, t))
-	add(outlierCheck(r, d, pol, t))
-	for k := 0; k < len(checks)-first && k < len(spans); k++ {
-		if sp := spans[k]; sp[1] > sp[0] {
-			dt.keep(&checks[first+k].Detail, sp[0], sp[1])
-		}
+		start = ends[k]
 	}
 	return checks
 }

@@ -155,7 +155,7 @@ type reportMem struct {
 	coef, se [3]float64
 	cov      [9]float64
 	covRows  [3][]float64
-	checks   [10]Check
+	checks   [len(checkNames)]Check
 	cautions [len(cautionTexts)]string
 }
 
