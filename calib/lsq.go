@@ -9,16 +9,15 @@ import (
 
 // lsq is a weighted least-squares solution.
 type lsq struct {
-	p      int
-	beta   []float64 // coefficients, model-equation order
-	xtwx   []float64 // (XᵀWX)⁻¹, p×p row-major, model-equation order
-	s      float64   // √(Σw e²/df)
-	ssr    float64   // Σw e²
-	df     int
-	r2     float64
-	fitted []float64
-	resid  []float64
-	lev    []float64 // diagonal of the weighted hat matrix
+	p     int
+	beta  []float64 // coefficients, model-equation order
+	xtwx  []float64 // (XᵀWX)⁻¹, p×p row-major, model-equation order
+	s     float64   // √(Σw e²/df)
+	ssr   float64   // Σw e²
+	df    int
+	r2    float64
+	resid []float64 // y − fitted value
+	lev   []float64 // diagonal of the weighted hat matrix
 }
 
 // powers returns the powers of x of the model's regressors, in
@@ -169,8 +168,8 @@ func (d *design) fit(model Model) (lsq, error) {
 }
 
 // fitLen is the length of the arrays of a solution with p coefficients
-// and n readings: β, (XᵀWX)⁻¹, fitted values, residuals and leverages.
-func fitLen(p, n int) int { return p + p*p + 3*n }
+// and n readings: β, (XᵀWX)⁻¹, residuals and leverages.
+func fitLen(p, n int) int { return p + p*p + 2*n }
 
 // fitInto is fit with the solution's arrays in buf (of length fitLen, or
 // nil to allocate).
@@ -180,7 +179,7 @@ func (d *design) fitInto(model Model, buf []float64) (lsq, error) {
 		buf = make([]float64, fitLen(p, n))
 	}
 	out := lsq{beta: buf[:p:p], xtwx: buf[p : p+p*p : p+p*p]}
-	out.fitted, out.resid, out.lev = buf[p+p*p:p+p*p+n:p+p*p+n], buf[p+p*p+n:p+p*p+2*n:p+p*p+2*n], buf[p+p*p+2*n:]
+	out.resid, out.lev = buf[p+p*p:p+p*p+n:p+p*p+n], buf[p+p*p+n:p+p*p+2*n:p+p*p+2*n]
 	if err := d.solve(model, &out, true); err != nil {
 		return lsq{}, err
 	}
@@ -188,9 +187,8 @@ func (d *design) fitInto(model Model, buf []float64) (lsq, error) {
 }
 
 // fitSSR is fit for a caller that needs only Σw e² (Mandel's test): the
-// same arithmetic, so the same value, without the covariance, fitted values
-// and leverages and without allocating (the residuals go to the design's
-// scratch).
+// same arithmetic, so the same value, without the covariance and leverages
+// and without allocating (the residuals go to the design's scratch).
 func (d *design) fitSSR(model Model) (float64, error) {
 	var beta [3]float64
 	out := lsq{beta: beta[:nParams(model)]}
@@ -201,7 +199,7 @@ func (d *design) fitSSR(model Model) (float64, error) {
 }
 
 // solve is fit into out, whose beta has length p; with full, xtwx (p×p),
-// fitted, resid and lev (n each) are filled too.
+// resid and lev (n each) are filled too.
 func (d *design) solve(model Model, out *lsq, full bool) error {
 	mp := powers(model)
 	p, n, c := len(mp), d.n, d.k+1
@@ -328,10 +326,7 @@ func (d *design) solve(model Model, out *lsq, full bool) error {
 		swy += w[i] * y[i]
 	}
 	if full {
-		fitted, lev := out.fitted[:n], out.lev[:n]
-		for i := 0; i < n; i++ {
-			fitted[i] = y[i] - e[i]
-		}
+		lev := out.lev[:n]
 		// hᵢ = Σ_l sₗ², sₗ = Σ_{m≤l} row[m]·R⁻¹[m][l]. The loops for p = 2
 		// and 3 write the sums out; starting them at their first term
 		// instead of at 0 can only turn a −0 into +0 in sₗ, which sₗ² does

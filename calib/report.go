@@ -121,7 +121,7 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	for k, i := range d.idx {
 		pr := &r.Points[i]
 		pr.Weight = w[k]
-		pr.Fitted, pr.Residual = f.fitted[k], f.resid[k]
+		pr.Fitted, pr.Residual = d.y[k]-f.resid[k], f.resid[k]
 		pr.WeightedResidual = math.Sqrt(w[k]) * f.resid[k]
 		pr.Leverage = f.lev[k]
 		if f.s > 0 && 1-f.lev[k] > 1e-10 {
