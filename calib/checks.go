@@ -291,7 +291,7 @@ func backCalcCheck(r *Report, d *dataset, pol Policy, t *text) Check {
 		}
 	}()
 	nbad := 0
-	for _, i := range d.idx {
+	for k, i := range d.idx {
 		p := &r.Points[i]
 		if p.X == 0 {
 			continue
@@ -303,7 +303,7 @@ func backCalcCheck(r *Report, d *dataset, pol Policy, t *text) Check {
 		}
 		if p.HasRelativeError && math.Abs(p.RelativeErrorPct) <= tol {
 			pass++
-			if l := d.levelOf(p.X); !passed[l] {
+			if l := d.level[k]; !passed[l] {
 				passed[l] = true
 				levelsOK++
 			}

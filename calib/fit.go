@@ -11,6 +11,7 @@ import (
 type dataset struct {
 	idx    []int // index in the caller's points of each fitted reading
 	order  []int // fitted readings by increasing x (stable); levels' idx are runs of it
+	level  []int // index in levels of each fitted reading
 	x, y   []float64
 	levels []level // by increasing x
 	// spare is the rest of the float64 block that holds x and y: the
@@ -174,8 +175,9 @@ func (d *dataset) load(points []Point, model Model) error {
 		labelMap = make(map[string]float64, n0)
 	}
 	buf := make([]float64, 2*n0+spareLen(n0))
-	ints := make([]int, 2*n0) // idx, then the level order of groupLevels
-	*d = dataset{idx: ints[:0:n0], order: ints[n0 : 2*n0 : 2*n0], x: buf[:0:n0], y: buf[n0 : n0 : 2*n0], spare: buf[2*n0:]}
+	ints := make([]int, 3*n0) // idx, then the level order and the level of each reading (groupLevels)
+	*d = dataset{idx: ints[:0:n0], order: ints[n0 : 2*n0 : 2*n0], level: ints[2*n0 : 3*n0 : 3*n0],
+		x: buf[:0:n0], y: buf[n0 : n0 : 2*n0], spare: buf[2*n0:]}
 	for i, p := range points {
 		// field names the point for an error; built only when one is reported.
 		field := func(sub string) string { return "points[" + strconv.Itoa(i) + "]" + sub }
@@ -304,8 +306,12 @@ func (d *dataset) groupLevels() {
 		}
 		d.levels = append(d.levels, level{x: d.x[i], idx: order[k : k+1 : k+1]})
 	}
+	d.level = d.level[:len(d.x)]
 	for l := range d.levels {
 		lv := &d.levels[l]
+		for _, i := range lv.idx {
+			d.level[i] = l
+		}
 		lv.count = len(lv.idx)
 		var s float64
 		for _, i := range lv.idx {
@@ -386,21 +392,6 @@ func fitAuto(points []Point, d *dataset, opt Options) (*Report, error) {
 	}
 	scores[best].Chosen = true
 	return build(points, d, opt, bestPlan, bestRaw, bestRaw, scores)
-}
-
-// levelOf returns the index in d.levels of the level at concentration x,
-// which must be the x of a fitted reading.
-func (d *dataset) levelOf(x float64) int {
-	lo, hi := 0, len(d.levels)-1
-	for lo < hi {
-		m := int(uint(lo+hi) >> 1)
-		if d.levels[m].x < x {
-			lo = m + 1
-		} else {
-			hi = m
-		}
-	}
-	return lo
 }
 
 // unreplicated returns the index of the first level with a single reading,
