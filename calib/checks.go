@@ -40,8 +40,9 @@ func checkSource(name string, m Model) string {
 }
 
 // computeChecks evaluates every check of the policy on the fit f of the
-// dataset d with normalised weights w.
-func computeChecks(r *Report, d *dataset, des *design, f lsq, w []float64, pol Policy) []Check {
+// dataset d with normalised weights w, appending them to checks. The Detail
+// texts the checks compute are written to dt's text and set by dt.done.
+func computeChecks(r *Report, d *dataset, des *design, f lsq, w []float64, pol Policy, checks []Check, dt *details) []Check {
 	var nzBuf [64]float64
 	nz := nzBuf[:0]
 	if len(d.levels) > len(nzBuf) {
@@ -50,28 +51,50 @@ func computeChecks(r *Report, d *dataset, des *design, f lsq, w []float64, pol P
 	for _, lv := range d.levels {
 		nz = append(nz, lv.x)
 	}
-	checks := []Check{
-		minLevelsCheck(nz, pol),
-		mandelCheck(r, d, des, f, pol),
-		lackOfFitCheck(d, f, w, pol),
-		homoscedasticityCheck(r, d, pol),
-		backCalcCheck(r, d, pol),
-		rSquaredCheck(r, pol),
-		rseCheck(r, d, pol),
-		interceptCheck(r, des, f, pol),
-		runsCheck(r, d, f, pol),
-		outlierCheck(r, d, pol),
-	}
-	for i := range checks {
-		c := &checks[i]
+	t := dt.t
+	first := len(checks)
+	// ends[i] is where the Detail text of check first+i ends in t (a check
+	// that is not computed writes none: its Detail is set directly).
+	var ends [len(checkNames)]int
+	start := len(t.b)
+	checks = append(checks, minLevelsCheck(nz, pol, t))
+	ends[0] = len(t.b)
+	checks = append(checks, mandelCheck(r, d, des, f, pol, t))
+	ends[1] = len(t.b)
+	checks = append(checks, lackOfFitCheck(d, f, w, pol, t))
+	ends[2] = len(t.b)
+	checks = append(checks, homoscedasticityCheck(r, d, pol, t))
+	ends[3] = len(t.b)
+	checks = append(checks, backCalcCheck(r, d, pol, t))
+	ends[4] = len(t.b)
+	checks = append(checks, rSquaredCheck(r, pol, t))
+	ends[5] = len(t.b)
+	checks = append(checks, rseCheck(r, d, pol, t))
+	ends[6] = len(t.b)
+	checks = append(checks, interceptCheck(r, des, f, pol, t))
+	ends[7] = len(t.b)
+	checks = append(checks, runsCheck(r, d, f, pol, t))
+	ends[8] = len(t.b)
+	checks = append(checks, outlierCheck(r, d, pol, t))
+	ends[9] = len(t.b)
+	for k := range ends {
+		c := &checks[first+k]
 		c.Source = checkSource(c.Name, r.Model)
 		c.Mandatory = pol.mandatory(c.Name)
+		if ends[k] > start {
+			if c.Computed {
+				dt.keep(&c.Detail, start, ends[k])
+			} else {
+				c.Detail = string(t.b[start:ends[k]])
+			}
+		}
 		if !c.Computed {
 			c.Passed = false
 			if c.Mandatory {
 				c.Detail += mandatoryNote
 			}
 		}
+		start = ends[k]
 	}
 	return checks
 }
@@ -84,7 +107,7 @@ func notComputed(name, why string) Check {
 // minLevelsCheck: the number of distinct non-zero concentrations in the fit
 // must reach Policy.MinLevels (zero-concentration standards are not counted,
 // as ICH M10 does not count blank and zero sample).
-func minLevelsCheck(xs []float64, pol Policy) Check {
+func minLevelsCheck(xs []float64, pol Policy, t *text) Check {
 	k := 0
 	for _, x := range xs {
 		if x != 0 {
@@ -93,10 +116,8 @@ func minLevelsCheck(xs []float64, pol Policy) Check {
 	}
 	c := Check{Name: CheckMinLevels, Statistic: float64(k), Limit: float64(pol.MinLevels), Computed: true,
 		Passed: k >= pol.MinLevels, Source: checkSource(CheckMinLevels, "")}
-	t := newText()
-	defer t.free()
-	c.Detail = t.i(k).s(" non-zero concentration level(s) in the fit; at least ").i(pol.MinLevels).
-		s(" are required. Zero-concentration standards (blank, zero sample) are not counted.").str()
+	t.i(k).s(" non-zero concentration level(s) in the fit; at least ").i(pol.MinLevels).
+		s(" are required. Zero-concentration standards (blank, zero sample) are not counted.")
 	return c
 }
 
@@ -106,7 +127,7 @@ func minLevelsCheck(xs []float64, pol Policy) Check {
 // adequate); for the quadratic PG > F passes (the quadratic term is
 // justified, ISO 8466-2). The origin model is judged by the curvature of the
 // unconstrained line. Needs N ≥ 4 readings at three or more levels.
-func mandelCheck(r *Report, d *dataset, des *design, f lsq, pol Policy) Check {
+func mandelCheck(r *Report, d *dataset, des *design, f lsq, pol Policy, t *text) Check {
 	n := len(d.x)
 	if n < 4 || len(d.levels) < 3 {
 		return notComputed(CheckMandel, "Mandel's test needs at least 4 readings at 3 or more concentrations")
@@ -135,8 +156,6 @@ func mandelCheck(r *Report, d *dataset, des *design, f lsq, pol Policy) Check {
 	fc := fQuantile(1-pol.MandelAlpha, 1, n-3)
 	c := Check{Name: CheckMandel, Statistic: pg, Limit: fc, Computed: true}
 	better := pg > fc
-	t := newText()
-	defer t.free()
 	t.s("PG = ").g(pg)
 	if better {
 		t.s(" > ")
@@ -158,7 +177,6 @@ func mandelCheck(r *Report, d *dataset, des *design, f lsq, pol Policy) Check {
 		t.s(" (Tested on the line with intercept, which shows the curvature of the readings.)")
 	}
 	c.Passed = better == (r.Model == Quadratic)
-	c.Detail = t.str()
 	return c
 }
 
@@ -166,7 +184,7 @@ func mandelCheck(r *Report, d *dataset, des *design, f lsq, pol Policy) Check {
 // df k−p; F = [SSlof/(k−p)]/[SSpe/(n−k)] against F(1−α; k−p, n−k)
 // (Montgomery). Needs replicates (n > k) and k > p levels; never passes by
 // default.
-func lackOfFitCheck(d *dataset, f lsq, w []float64, pol Policy) Check {
+func lackOfFitCheck(d *dataset, f lsq, w []float64, pol Policy, t *text) Check {
 	n, k, p := len(d.x), len(d.levels), f.p
 	if n-k < 1 {
 		return notComputed(CheckLackOfFit, "no level has replicate readings, so there is no pure error to test against")
@@ -193,8 +211,6 @@ func lackOfFitCheck(d *dataset, f lsq, w []float64, pol Policy) Check {
 	fs := (sslof / float64(k-p)) / (sspe / float64(n-k))
 	fc := fQuantile(1-pol.LackOfFitAlpha, k-p, n-k)
 	c := Check{Name: CheckLackOfFit, Statistic: fs, Limit: fc, Computed: true, Passed: fs <= fc}
-	t := newText()
-	defer t.free()
 	t.s("F = ").g(fs)
 	if c.Passed {
 		t.s(" ≤ ")
@@ -207,14 +223,13 @@ func lackOfFitCheck(d *dataset, f lsq, w []float64, pol Policy) Check {
 	} else {
 		t.s(": the level means deviate from the curve more than the replicates scatter; the model does not describe the data.")
 	}
-	c.Detail = t.str()
 	return c
 }
 
 // homoscedasticityCheck: PG = larger/smaller of s² at the lowest and the
 // highest level against F(1−α; n_larger−1, n_smaller−1) (ISO 8466-1). Needs
 // two or more readings at both ends and a non-zero smaller variance.
-func homoscedasticityCheck(r *Report, d *dataset, pol Policy) Check {
+func homoscedasticityCheck(r *Report, d *dataset, pol Policy, t *text) Check {
 	lo, hi := d.levels[0], d.levels[len(d.levels)-1]
 	if lo.count < 2 || hi.count < 2 {
 		return notComputed(CheckHomoscedasticity, "the lowest and the highest level both need two or more readings")
@@ -230,8 +245,6 @@ func homoscedasticityCheck(r *Report, d *dataset, pol Policy) Check {
 	pg := big / small
 	fc := fQuantile(1-pol.HomoscedasticityAlpha, dn, dd)
 	c := Check{Name: CheckHomoscedasticity, Statistic: pg, Limit: fc, Computed: true, Passed: pg <= fc}
-	t := newText()
-	defer t.free()
 	t.s("Variance ratio ").g(pg)
 	if c.Passed {
 		t.s(" ≤ ")
@@ -248,7 +261,6 @@ func homoscedasticityCheck(r *Report, d *dataset, pol Policy) Check {
 		t.s(": the response variance differs between the ends of the range (heteroscedastic); this is expected with ").
 			s(string(r.Weighting)).s(" weighting, which accounts for it.")
 	}
-	c.Detail = t.str()
 	return c
 }
 
@@ -257,7 +269,7 @@ func homoscedasticityCheck(r *Report, d *dataset, pol Policy) Check {
 // lowest non-zero level); the run passes if the passing fraction is at
 // least BackCalcMinPassFraction and passing standards cover at least
 // MinLevels levels (ICH M10).
-func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
+func backCalcCheck(r *Report, d *dataset, pol Policy, t *text) Check {
 	low := 0.0
 	for _, lv := range d.levels {
 		if lv.x != 0 {
@@ -279,7 +291,7 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 		}
 	}()
 	nbad := 0
-	for _, i := range d.idx {
+	for k, i := range d.idx {
 		p := &r.Points[i]
 		if p.X == 0 {
 			continue
@@ -291,7 +303,7 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 		}
 		if p.HasRelativeError && math.Abs(p.RelativeErrorPct) <= tol {
 			pass++
-			if l := d.levelOf(p.X); !passed[l] {
+			if l := d.level[k]; !passed[l] {
 				passed[l] = true
 				levelsOK++
 			}
@@ -314,8 +326,6 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 	if total == 0 {
 		return notComputed(CheckBackCalculation, "no fitted standard has a non-zero nominal concentration")
 	}
-	t := newText()
-	defer t.free()
 	frac := float64(pass) / float64(total)
 	c := Check{Name: CheckBackCalculation, Statistic: frac, Limit: pol.BackCalcMinPassFraction, Computed: true,
 		Passed: frac >= pol.BackCalcMinPassFraction && levelsOK >= pol.MinLevels}
@@ -325,7 +335,6 @@ func backCalcCheck(r *Report, d *dataset, pol Policy) Check {
 	if bad != nil {
 		t.s(" Outside tolerance: ").add(bad).s(".")
 	}
-	c.Detail = t.str()
 	return c
 }
 
@@ -337,10 +346,8 @@ func pointName(p *PointResult, i int) string {
 }
 
 // rSquaredCheck: R² ≥ MinRSquared (US EPA SW-846 8000D).
-func rSquaredCheck(r *Report, pol Policy) Check {
+func rSquaredCheck(r *Report, pol Policy, t *text) Check {
 	c := Check{Name: CheckRSquared, Statistic: r.RSquared, Limit: pol.MinRSquared, Computed: true, Passed: r.RSquared >= pol.MinRSquared}
-	t := newText()
-	defer t.free()
 	t.s("R² = ")
 	if r.RSquared > 0.999 && r.RSquared < 1 {
 		t.g10(r.RSquared)
@@ -354,14 +361,14 @@ func rSquaredCheck(r *Report, pol Policy) Check {
 	case r.Weighting != WeightNone:
 		t.s(" (weighted)")
 	}
-	c.Detail = t.s(". R² alone does not show linearity; read it with the back-calculation and Mandel checks.").str()
+	t.s(". R² alone does not show linearity; read it with the back-calculation and Mandel checks.")
 	return c
 }
 
 // rseCheck: RSE = 100·√{Σ[(x'ᵢ − xᵢ)/xᵢ]²/(n − p)} over the fitted standards
 // with non-zero nominal (US EPA SW-846 8000D). Needs n > p such standards,
 // each read back.
-func rseCheck(r *Report, d *dataset, pol Policy) Check {
+func rseCheck(r *Report, d *dataset, pol Policy, t *text) Check {
 	p := nParams(r.Model)
 	var ss float64
 	n := 0
@@ -382,10 +389,8 @@ func rseCheck(r *Report, d *dataset, pol Policy) Check {
 	}
 	rse := 100 * math.Sqrt(ss/float64(n-p))
 	c := Check{Name: CheckRSE, Statistic: rse, Limit: pol.MaxRSEPct, Computed: true, Passed: rse <= pol.MaxRSEPct}
-	t := newText()
-	defer t.free()
-	c.Detail = t.s("RSE = ").g(rse).s(" % over ").i(n).s(" standards (n − p = ").i(n - p).
-		s(") against a maximum of ").gc(pol.MaxRSEPct).s(" %.").str()
+	t.s("RSE = ").g(rse).s(" % over ").i(n).s(" standards (n − p = ").i(n - p).
+		s(") against a maximum of ").gc(pol.MaxRSEPct).s(" %.")
 	return c
 }
 
@@ -393,7 +398,7 @@ func rseCheck(r *Report, d *dataset, pol Policy) Check {
 // the intercept of the line fitted with the same weights is tested: a
 // significant intercept means forcing the curve through zero is not
 // justified.
-func interceptCheck(r *Report, des *design, f lsq, pol Policy) Check {
+func interceptCheck(r *Report, des *design, f lsq, pol Policy, t *text) Check {
 	b0, v0, df := 0.0, 0.0, f.df
 	if r.Model == LinearOrigin {
 		if des.k < 2 {
@@ -414,8 +419,6 @@ func interceptCheck(r *Report, des *design, f lsq, pol Policy) Check {
 	ts := b0 / se
 	tc := studentT(1-pol.InterceptAlpha/2, df)
 	c := Check{Name: CheckIntercept, Statistic: ts, Limit: tc, Computed: true, Passed: math.Abs(ts) <= tc}
-	t := newText()
-	defer t.free()
 	t.s("Intercept ")
 	if r.Model == LinearOrigin {
 		t.s("of the unconstrained line ")
@@ -435,6 +438,5 @@ func interceptCheck(r *Report, des *design, f lsq, pol Policy) Check {
 	default:
 		t.s(": the intercept differs significantly from zero (blank contribution or matrix effect); review the blank.")
 	}
-	c.Detail = t.str()
 	return c
 }

@@ -11,8 +11,29 @@ import (
 type dataset struct {
 	idx    []int // index in the caller's points of each fitted reading
 	order  []int // fitted readings by increasing x (stable); levels' idx are runs of it
+	level  []int // index in levels of each fitted reading
 	x, y   []float64
 	levels []level // by increasing x
+	// spare is the rest of the float64 block that holds x and y: the
+	// per-reading workspace of one fit (raw weights, the design, the
+	// solution's per-reading arrays), handed out by take.
+	spare []float64
+}
+
+// spareLen is the workspace of one fit of n readings, in float64s: the
+// raw weights, the design of up to three regressors and the solution's
+// arrays.
+func spareLen(n int) int { return n + designLen(n, 3) + fitLen(3, n) }
+
+// take returns k floats of d's workspace, or new ones when it is used up.
+// Each part is handed out once per fit, so concurrent fits share nothing.
+func (d *dataset) take(k int) []float64 {
+	if len(d.spare) < k {
+		return make([]float64, k)
+	}
+	s := d.spare[:k:k]
+	d.spare = d.spare[k:]
+	return s
 }
 
 // level is one nominal concentration among the fitted readings.
@@ -63,7 +84,7 @@ func Fit(points []Point, opt Options) (*Report, error) {
 	if opt.Weighting == WeightAuto {
 		return fitAuto(points, d, opt)
 	}
-	wp, raw, err := planWeights(opt.Weighting, d)
+	wp, raw, err := planWeightsInto(opt.Weighting, d, d.take(len(d.x)))
 	if err != nil {
 		return nil, err
 	}
@@ -91,7 +112,7 @@ func fitWeights(points []Point, opt Options, raw []float64) (*Report, error) {
 			return nil, inputErr("weights["+strconv.Itoa(i)+"]", "weight must be a finite number > 0, got %v", w)
 		}
 	}
-	wp, planRaw, err := planWeights(opt.Weighting, d)
+	wp, planRaw, err := planWeightsInto(opt.Weighting, d, d.take(len(d.x)))
 	if err != nil {
 		return nil, err
 	}
@@ -131,8 +152,17 @@ func resolveOptions(opt Options) (Options, error) {
 
 // prepare validates the points and groups the fitted ones into levels.
 func prepare(points []Point, model Model) (*dataset, error) {
+	d := new(dataset)
+	if err := d.load(points, model); err != nil {
+		return nil, err
+	}
+	return d, nil
+}
+
+// load is prepare into d.
+func (d *dataset) load(points []Point, model Model) error {
 	if len(points) == 0 {
-		return nil, inputErr("points", "no calibration points")
+		return inputErr("points", "no calibration points")
 	}
 	n0 := len(points)
 	// The concentration of each level label: a short list searched
@@ -144,20 +174,21 @@ func prepare(points []Point, model Model) (*dataset, error) {
 	if n0 > len(labelBuf) {
 		labelMap = make(map[string]float64, n0)
 	}
-	buf := make([]float64, 2*n0)
-	ints := make([]int, 2*n0) // idx, then the level order of groupLevels
-	d := &dataset{idx: ints[:0:n0], order: ints[n0 : 2*n0 : 2*n0], x: buf[:0:n0], y: buf[n0 : n0 : 2*n0]}
+	buf := make([]float64, 2*n0+spareLen(n0))
+	ints := make([]int, 3*n0) // idx, then the level order and the level of each reading (groupLevels)
+	*d = dataset{idx: ints[:0:n0], order: ints[n0 : 2*n0 : 2*n0], level: ints[2*n0 : 3*n0 : 3*n0],
+		x: buf[:0:n0], y: buf[n0 : n0 : 2*n0], spare: buf[2*n0:]}
 	for i, p := range points {
 		// field names the point for an error; built only when one is reported.
 		field := func(sub string) string { return "points[" + strconv.Itoa(i) + "]" + sub }
 		if math.IsNaN(p.X) || math.IsInf(p.X, 0) {
-			return nil, inputErr(field(".x"), "concentration is not a finite number")
+			return inputErr(field(".x"), "concentration is not a finite number")
 		}
 		if p.X < 0 {
-			return nil, inputErr(field(".x"), "negative concentration %v", p.X)
+			return inputErr(field(".x"), "negative concentration %v", p.X)
 		}
 		if math.IsNaN(p.Y) || math.IsInf(p.Y, 0) {
-			return nil, inputErr(field(".y"), "response is not a finite number")
+			return inputErr(field(".y"), "response is not a finite number")
 		}
 		if p.Level != "" {
 			var x float64
@@ -170,7 +201,7 @@ func prepare(points []Point, model Model) (*dataset, error) {
 				labels, x, seen = findLabel(labels, p.Level, p.X)
 			}
 			if seen && x != p.X {
-				return nil, inputErr(field(".level"), "level %q has readings at two concentrations (%v and %v)", p.Level, x, p.X)
+				return inputErr(field(".level"), "level %q has readings at two concentrations (%v and %v)", p.Level, x, p.X)
 			}
 		}
 		if !p.Excluded {
@@ -181,21 +212,21 @@ func prepare(points []Point, model Model) (*dataset, error) {
 	}
 	n, p := len(d.x), nParams(model)
 	if n == 0 {
-		return nil, inputErr("points", "every point is excluded")
+		return inputErr("points", "every point is excluded")
 	}
 	if n < p {
-		return nil, inputErr("points", "%d fitted readings for %d coefficients (%s)", n, p, model)
+		return inputErr("points", "%d fitted readings for %d coefficients (%s)", n, p, model)
 	}
 	if n == p {
-		return nil, inputErr("points", "%d fitted readings for %d coefficients leave no residual degrees of freedom", n, p)
+		return inputErr("points", "%d fitted readings for %d coefficients leave no residual degrees of freedom", n, p)
 	}
 	d.groupLevels()
 	k := len(d.levels)
 	if k < 2 {
-		return nil, inputErr("points", "every fitted standard is at one concentration (%s): one level only", fmtG(d.x[0]))
+		return inputErr("points", "every fitted standard is at one concentration (%s): one level only", fmtG(d.x[0]))
 	}
 	if model == Quadratic && k < 3 {
-		return nil, inputErr("points", "a quadratic needs three or more concentrations, got %d", k)
+		return inputErr("points", "a quadratic needs three or more concentrations, got %d", k)
 	}
 	equal := true
 	for _, y := range d.y[1:] {
@@ -205,9 +236,9 @@ func prepare(points []Point, model Model) (*dataset, error) {
 		}
 	}
 	if equal {
-		return nil, inputErr("points", "all responses are equal (%s): the curve has no slope", fmtG(d.y[0]))
+		return inputErr("points", "all responses are equal (%s): the curve has no slope", fmtG(d.y[0]))
 	}
-	return d, nil
+	return nil
 }
 
 // labelX is a level label and its concentration.
@@ -225,11 +256,18 @@ func findLabel(list []labelX, label string, x float64) ([]labelX, float64, bool)
 		return list, list[k].x, true
 	}
 	for _, e := range list {
-		if e.label == label {
+		if sameLabel(e.label, label) {
 			return list, e.x, true
 		}
 	}
 	return append(list, labelX{label, x}), x, false
+}
+
+// sameLabel is a == b for non-empty level labels, which usually differ in
+// their last character ("L1", "L2", ...): that byte is compared first,
+// inline, before the full comparison.
+func sameLabel(a, b string) bool {
+	return len(a) == len(b) && a[len(a)-1] == b[len(b)-1] && a == b
 }
 
 // groupLevels groups the fitted readings by exact nominal concentration.
@@ -268,8 +306,12 @@ func (d *dataset) groupLevels() {
 		}
 		d.levels = append(d.levels, level{x: d.x[i], idx: order[k : k+1 : k+1]})
 	}
+	d.level = d.level[:len(d.x)]
 	for l := range d.levels {
 		lv := &d.levels[l]
+		for _, i := range lv.idx {
+			d.level[i] = l
+		}
 		lv.count = len(lv.idx)
 		var s float64
 		for _, i := range lv.idx {
@@ -350,21 +392,6 @@ func fitAuto(points []Point, d *dataset, opt Options) (*Report, error) {
 	}
 	scores[best].Chosen = true
 	return build(points, d, opt, bestPlan, bestRaw, bestRaw, scores)
-}
-
-// levelOf returns the index in d.levels of the level at concentration x,
-// which must be the x of a fitted reading.
-func (d *dataset) levelOf(x float64) int {
-	lo, hi := 0, len(d.levels)-1
-	for lo < hi {
-		m := int(uint(lo+hi) >> 1)
-		if d.levels[m].x < x {
-			lo = m + 1
-		} else {
-			hi = m
-		}
-	}
-	return lo
 }
 
 // unreplicated returns the index of the first level with a single reading,

@@ -17,7 +17,7 @@ import "math"
 // Preconditions: S ≠ 0. With weighting, s is the SD of a reading of unit
 // weight on the Σw = n scale and the constant-SD form of ISO 11843-2 is then
 // an approximation; the Detail says so.
-func computeLimits(r *Report, f lsq) Limits {
+func computeLimits(r *Report, f lsq, t *text) Limits {
 	c := r.Coefficients
 	var b0, slope float64
 	switch r.Model {
@@ -41,8 +41,6 @@ func computeLimits(r *Report, f lsq) Limits {
 	l.CriticalValue = b0 + math.Copysign(tq*s*rr, slope)
 	l.CriticalConc = tq * s * rr / as
 	l.DetectionLimit = 2 * l.CriticalConc
-	t := newText()
-	defer t.free()
 	t.s("LOD = 3.3·σ/S and LOQ = 10·σ/S (ICH Q2(R2)) with σ = residual SD ").g(s).s(" and S = ").g(slope)
 	if r.Model == Quadratic {
 		t.s(" (the quadratic's sensitivity b1 + 2·b2·x at the lowest standard x = ").g(r.Range.Low).s(")")
@@ -55,6 +53,6 @@ func computeLimits(r *Report, f lsq) Limits {
 	if r.Model == LinearOrigin {
 		t.s("; the origin model takes the blank response as exactly 0")
 	}
-	l.Detail = t.s(".").str()
+	t.s(".")
 	return l
 }

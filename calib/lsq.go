@@ -2,24 +2,22 @@ package calib
 
 import (
 	"math"
-	"sync"
 
 	"gonum.org/v1/gonum/blas/blas64"
-	"gonum.org/v1/gonum/mat"
+	"gonum.org/v1/gonum/lapack/lapack64"
 )
 
 // lsq is a weighted least-squares solution.
 type lsq struct {
-	p      int
-	beta   []float64 // coefficients, model-equation order
-	xtwx   []float64 // (XᵀWX)⁻¹, p×p row-major, model-equation order
-	s      float64   // √(Σw e²/df)
-	ssr    float64   // Σw e²
-	df     int
-	r2     float64
-	fitted []float64
-	resid  []float64
-	lev    []float64 // diagonal of the weighted hat matrix
+	p     int
+	beta  []float64 // coefficients, model-equation order
+	xtwx  []float64 // (XᵀWX)⁻¹, p×p row-major, model-equation order
+	s     float64   // √(Σw e²/df)
+	ssr   float64   // Σw e²
+	df    int
+	r2    float64
+	resid []float64 // y − fitted value
+	lev   []float64 // diagonal of the weighted hat matrix
 }
 
 // powers returns the powers of x of the model's regressors, in
@@ -46,7 +44,7 @@ func basis(m Model, x float64, v []float64) {
 	}
 }
 
-// design is one Householder QR factorisation (gonum mat.QR) of the
+// design is one Householder QR factorisation (gonum's LAPACK Dgeqrf) of the
 // weighted, column-scaled, augmented matrix [√W·X·D | √W·y·c]. D and c are
 // powers of two that bring every column to unit norm order (exact, and R
 // stays well scaled). Because Householder QR treats the columns left to
@@ -55,60 +53,55 @@ func basis(m Model, x float64, v []float64) {
 // [1, x, x²] serves the line and the quadratic, and one of [x, 1, x²] the
 // origin model, the line and the quadratic (for Mandel's test and the
 // intercept test).
+//
+// Only R̃ is needed (rank is judged from its diagonal in solve), so the
+// factorisation is called on the caller's workspace directly rather than
+// through mat.QR, which would also estimate a condition number and
+// allocate on every call.
 type design struct {
 	n, k    int       // readings; regressor columns (the y column is k)
 	pow     [3]int    // power of x in each regressor column
-	data    []float64 // the scaled n×(k+1) matrix, row-major (in ws until release)
+	data    []float64 // the scaled n×(k+1) matrix, row-major (kept: solve reads its rows)
 	scale   [4]float64
 	r       [4][4]float64 // R̃, (k+1)×(k+1)
 	x, y, w []float64
-	ws      *qrWork
+	scratch []float64 // n residuals for fitSSR
 }
 
-// qrWork is the reusable workspace of one factorisation: the matrix handed
-// to mat.QR, the QR itself and the R̃ it is read into. Fits are short and
-// frequent, so the workspace is pooled rather than allocated per fit.
-type qrWork struct {
-	qr    mat.QR
-	a, rt mat.Dense
-	data  []float64
+// designLen is the length of the workspace init needs for n readings and k
+// regressor columns: the scaled matrix, its copy that Dgeqrf overwrites,
+// Dgeqrf's reflector scales and work, and n residuals for fitSSR.
+func designLen(n, k int) int {
+	c := k + 1
+	return 2*n*c + 2*c + n
 }
 
-var qrPool = sync.Pool{New: func() any { return new(qrWork) }}
-
-// newDesign factorises [√W·X | √W·y] for regressor columns with the given
-// powers of x. Preconditions: n > 0, w > 0, every entry finite. The caller
-// calls release when done with the design.
-func newDesign(pow []int, x, y, w []float64) (*design, error) {
-	d := new(design)
-	if err := d.init(pow, x, y, w); err != nil {
-		return nil, err
-	}
-	return d, nil
-}
-
-// init is newDesign into a caller-provided design (which may live on the
-// caller's stack).
-func (d *design) init(pow []int, x, y, w []float64) error {
+// init factorises [√W·X | √W·y] for regressor columns with the given
+// powers of x into d, using buf (of length designLen, or nil to allocate)
+// as workspace; d.data points into buf afterwards. Preconditions:
+// n ≥ len(pow)+1, w > 0, every entry finite.
+func (d *design) init(pow []int, x, y, w, buf []float64) error {
 	n, k := len(x), len(pow)
 	c := k + 1
-	ws := qrPool.Get().(*qrWork)
-	if cap(ws.data) < n*c {
-		ws.data = make([]float64, n*c)
+	if len(buf) < designLen(n, k) {
+		buf = make([]float64, designLen(n, k))
 	}
-	*d = design{n: n, k: k, x: x, y: y, w: w, data: ws.data[:n*c], ws: ws}
+	*d = design{n: n, k: k, x: x, y: y, w: w, data: buf[: n*c : n*c]}
+	fact := buf[n*c : 2*n*c : 2*n*c]
+	tau := buf[2*n*c : 2*n*c+min(n, c) : 2*n*c+min(n, c)]
+	work := buf[2*n*c+c : 2*n*c+2*c : 2*n*c+2*c]
+	d.scratch = buf[2*n*c+2*c : 2*n*c+2*c+n : 2*n*c+2*c+n]
 	copy(d.pow[:], pow)
 	var norms [4]float64
 	for i := range x {
 		sw := math.Sqrt(w[i])
 		row := d.data[i*c : i*c+c]
+		xi := x[i]
+		xp := [3]float64{1, xi, xi * xi} // x to the power 0, 1, 2
 		for j, pw := range pow {
 			a := sw
-			switch pw {
-			case 1:
-				a *= x[i]
-			case 2:
-				a *= x[i] * x[i]
+			if pw > 0 {
+				a *= xp[pw]
 			}
 			row[j] = a
 			norms[j] += a * a
@@ -119,7 +112,6 @@ func (d *design) init(pow []int, x, y, w []float64) error {
 	}
 	for j := 0; j < c; j++ {
 		if math.IsNaN(norms[j]) || math.IsInf(norms[j], 0) {
-			d.release()
 			return inputErr("points", "values are outside the numerically usable range")
 		}
 		e := 0
@@ -128,32 +120,21 @@ func (d *design) init(pow []int, x, y, w []float64) error {
 		}
 		d.scale[j] = math.Ldexp(1, -e)
 	}
-	for i := 0; i < n; i++ {
-		row := d.data[i*c : i*c+c]
-		for j := range row {
-			row[j] *= d.scale[j]
+	sc := d.scale[:c]
+	for o := 0; o < n*c; o += c {
+		row, frow := d.data[o:o+c], fact[o:o+c]
+		for j, s := range sc {
+			v := row[j] * s
+			row[j], frow[j] = v, v
 		}
 	}
-	ws.a.SetRawMatrix(blas64.General{Rows: n, Cols: c, Stride: c, Data: d.data})
-	ws.qr.Factorize(&ws.a)
-	ws.rt.Reset()
-	ws.qr.RTo(&ws.rt)
-	raw := ws.rt.RawMatrix()
+	lapack64.Geqrf(blas64.General{Rows: n, Cols: c, Stride: c, Data: fact}, tau, work, len(work))
 	for j := 0; j < c && j < n; j++ {
 		for l := j; l < c; l++ {
-			d.r[j][l] = raw.Data[j*raw.Stride+l]
+			d.r[j][l] = fact[j*c+l]
 		}
 	}
 	return nil
-}
-
-// release returns the design's workspace to the pool; d.data is not valid
-// afterwards.
-func (d *design) release() {
-	if d.ws != nil {
-		qrPool.Put(d.ws)
-		d.ws, d.data = nil, nil
-	}
 }
 
 // solveLSQ solves min Σwᵢ(yᵢ − Xᵢβ)² for the model by QR (see design and
@@ -164,11 +145,10 @@ func solveLSQ(model Model, x, y, w []float64) (lsq, error) {
 	if len(x) <= nParams(model) {
 		return lsq{}, inputErr("points", "%d readings for %d coefficients", len(x), nParams(model))
 	}
-	d, err := newDesign(powers(model), x, y, w)
-	if err != nil {
+	var d design
+	if err := d.init(powers(model), x, y, w, nil); err != nil {
 		return lsq{}, err
 	}
-	defer d.release()
 	return d.fit(model)
 }
 
@@ -184,10 +164,22 @@ func solveLSQ(model Model, x, y, w []float64) (lsq, error) {
 // A numerically rank-deficient R (|R_jj| ≤ 1e-11·max|R_ll|) is an
 // *InputError.
 func (d *design) fit(model Model) (lsq, error) {
+	return d.fitInto(model, nil)
+}
+
+// fitLen is the length of the arrays of a solution with p coefficients
+// and n readings: β, (XᵀWX)⁻¹, residuals and leverages.
+func fitLen(p, n int) int { return p + p*p + 2*n }
+
+// fitInto is fit with the solution's arrays in buf (of length fitLen, or
+// nil to allocate).
+func (d *design) fitInto(model Model, buf []float64) (lsq, error) {
 	p, n := nParams(model), d.n
-	buf := make([]float64, p+p*p+3*n)
+	if len(buf) < fitLen(p, n) {
+		buf = make([]float64, fitLen(p, n))
+	}
 	out := lsq{beta: buf[:p:p], xtwx: buf[p : p+p*p : p+p*p]}
-	out.fitted, out.resid, out.lev = buf[p+p*p:p+p*p+n:p+p*p+n], buf[p+p*p+n:p+p*p+2*n:p+p*p+2*n], buf[p+p*p+2*n:]
+	out.resid, out.lev = buf[p+p*p:p+p*p+n:p+p*p+n], buf[p+p*p+n:p+p*p+2*n:p+p*p+2*n]
 	if err := d.solve(model, &out, true); err != nil {
 		return lsq{}, err
 	}
@@ -195,8 +187,8 @@ func (d *design) fit(model Model) (lsq, error) {
 }
 
 // fitSSR is fit for a caller that needs only Σw e² (Mandel's test): the
-// same arithmetic, so the same value, without the covariance, fitted values
-// and leverages and without allocating.
+// same arithmetic, so the same value, without the covariance and leverages
+// and without allocating (the residuals go to the design's scratch).
 func (d *design) fitSSR(model Model) (float64, error) {
 	var beta [3]float64
 	out := lsq{beta: beta[:nParams(model)]}
@@ -207,7 +199,7 @@ func (d *design) fitSSR(model Model) (float64, error) {
 }
 
 // solve is fit into out, whose beta has length p; with full, xtwx (p×p),
-// fitted, resid and lev (n each) are filled too.
+// resid and lev (n each) are filled too.
 func (d *design) solve(model Model, out *lsq, full bool) error {
 	mp := powers(model)
 	p, n, c := len(mp), d.n, d.k+1
@@ -262,14 +254,37 @@ func (d *design) solve(model Model, out *lsq, full bool) error {
 		l := perm[j]
 		beta[j] = bc[l] * d.scale[l] / d.scale[d.k]
 	}
+	x, y, w := d.x[:n], d.y[:n], d.w[:n]
+	e := d.scratch[:n]
+	if full {
+		e = out.resid[:n]
+	}
 	// One refinement step: g = A_pᵀ(√W·e·c), u = R⁻ᵀg, δ' = R⁻¹u.
+	residualsDD(model, beta, x, y, e)
+	// g is accumulated reading by reading, the same sums in the same order
+	// for every p; p = 2 and 3 share a loop over rows of fixed length three
+	// (each row has c ≥ p+1 ≥ 3 entries).
 	var g [3]float64
-	for i := 0; i < n; i++ {
-		e := residualDD(model, beta, d.x[i], d.y[i])
-		re := math.Sqrt(d.w[i]) * e * d.scale[d.k]
-		row := d.data[i*c : i*c+p]
-		for l := range row {
-			g[l] += row[l] * re
+	yc := d.scale[d.k]
+	data := d.data[:n*c]
+	switch p {
+	case 2, 3:
+		for i, o := 0, 0; i < n; i, o = i+1, o+c {
+			re := math.Sqrt(w[i]) * e[i] * yc
+			row := data[o : o+3 : o+3]
+			g[0] += row[0] * re
+			g[1] += row[1] * re
+			if p == 3 {
+				g[2] += row[2] * re
+			}
+		}
+	default:
+		for i := 0; i < n; i++ {
+			re := math.Sqrt(w[i]) * e[i] * yc
+			row := data[i*c : i*c+p]
+			for l := range row {
+				g[l] += row[l] * re
+			}
 		}
 	}
 	var u [3]float64
@@ -303,39 +318,64 @@ func (d *design) solve(model Model, out *lsq, full bool) error {
 			}
 		}
 	}
+	residualsDD(model, beta, x, y, e)
 	var sumw, swy, ssr float64
 	for i := 0; i < n; i++ {
-		e := residualDD(model, beta, d.x[i], d.y[i])
-		ssr += d.w[i] * e * e
-		sumw += d.w[i]
-		swy += d.w[i] * d.y[i]
-		if !full {
-			continue
-		}
-		out.fitted[i] = d.y[i] - e
-		out.resid[i] = e
-		row := d.data[i*c : i*c+p]
-		var h float64
-		for l := 0; l < p; l++ {
-			var s float64
-			for m := 0; m <= l; m++ {
-				s += row[m] * rinv[m][l]
+		ssr += w[i] * e[i] * e[i]
+		sumw += w[i]
+		swy += w[i] * y[i]
+	}
+	if full {
+		lev := out.lev[:n]
+		// hᵢ = Σ_l sₗ², sₗ = Σ_{m≤l} row[m]·R⁻¹[m][l]. The loops for p = 2
+		// and 3 write the sums out; starting them at their first term
+		// instead of at 0 can only turn a −0 into +0 in sₗ, which sₗ² does
+		// not see.
+		switch p {
+		case 2, 3:
+			i00, i01, i11 := rinv[0][0], rinv[0][1], rinv[1][1]
+			i02, i12, i22 := rinv[0][2], rinv[1][2], rinv[2][2]
+			for i, o := 0, 0; i < n; i, o = i+1, o+c {
+				row := data[o : o+3 : o+3]
+				s0 := row[0] * i00
+				s1 := row[0] * i01
+				s1 += row[1] * i11
+				h := s0 * s0
+				h += s1 * s1
+				if p == 3 {
+					s2 := row[0] * i02
+					s2 += row[1] * i12
+					s2 += row[2] * i22
+					h += s2 * s2
+				}
+				lev[i] = h
 			}
-			h += s * s
+		default:
+			for i := 0; i < n; i++ {
+				row := data[i*c : i*c+p]
+				var h float64
+				for l := 0; l < p; l++ {
+					var s float64
+					for m := 0; m <= l; m++ {
+						s += row[m] * rinv[m][l]
+					}
+					h += s * s
+				}
+				lev[i] = h
+			}
 		}
-		out.lev[i] = h
 	}
 	out.ssr = ssr
 	out.s = math.Sqrt(ssr / float64(out.df))
 	var tss float64
 	if model == LinearOrigin {
 		for i := 0; i < n; i++ {
-			tss += d.w[i] * d.y[i] * d.y[i]
+			tss += w[i] * y[i] * y[i]
 		}
 	} else {
 		my := swy / sumw
 		for i := 0; i < n; i++ {
-			tss += d.w[i] * (d.y[i] - my) * (d.y[i] - my)
+			tss += w[i] * (y[i] - my) * (y[i] - my)
 		}
 	}
 	if !(tss > 0) || math.IsInf(tss, 0) || math.IsInf(ssr, 0) || math.IsNaN(ssr) {
@@ -345,26 +385,39 @@ func (d *design) solve(model Model, out *lsq, full bool) error {
 	return nil
 }
 
-// residualDD returns y − Σβⱼvⱼ(x) accumulated in double-double arithmetic
-// (products split exactly with FMA, sums with TwoSum), so that the residual
-// of a near-exact fit keeps its digits.
-func residualDD(model Model, beta []float64, x, y float64) float64 {
-	hi, lo := y, 0.0
+// residualsDD sets e[i] = y[i] − Σβⱼvⱼ(x[i]) accumulated in double-double
+// arithmetic (products split exactly with FMA, sums with TwoSum), so that
+// the residual of a near-exact fit keeps its digits. The model is resolved
+// once for the whole loop.
+func residualsDD(model Model, beta, x, y, e []float64) {
+	x, y = x[:len(e)], y[:len(e)]
 	switch model {
 	case LinearOrigin:
-		hi, lo = ddSub(hi, lo, beta[0], x)
+		b1 := beta[0]
+		for i := range e {
+			hi, lo := ddSub(y[i], 0, b1, x[i])
+			e[i] = hi + lo
+		}
 	case Quadratic:
-		x2 := x * x
-		x2e := math.FMA(x, x, -x2) // x² = x2 + x2e exactly
-		hi, lo = ddSub(hi, lo, beta[0], 1)
-		hi, lo = ddSub(hi, lo, beta[1], x)
-		hi, lo = ddSub(hi, lo, beta[2], x2)
-		hi, lo = ddSub(hi, lo, beta[2], x2e)
+		b0, b1, b2 := beta[0], beta[1], beta[2]
+		for i := range e {
+			xi := x[i]
+			x2 := xi * xi
+			x2e := math.FMA(xi, xi, -x2) // x² = x2 + x2e exactly
+			hi, lo := ddSub1(y[i], 0, b0)
+			hi, lo = ddSub(hi, lo, b1, xi)
+			hi, lo = ddSub(hi, lo, b2, x2)
+			hi, lo = ddSub(hi, lo, b2, x2e)
+			e[i] = hi + lo
+		}
 	default:
-		hi, lo = ddSub(hi, lo, beta[0], 1)
-		hi, lo = ddSub(hi, lo, beta[1], x)
+		b0, b1 := beta[0], beta[1]
+		for i := range e {
+			hi, lo := ddSub1(y[i], 0, b0)
+			hi, lo = ddSub(hi, lo, b1, x[i])
+			e[i] = hi + lo
+		}
 	}
-	return hi + lo
 }
 
 // ddSub returns (hi, lo) − b·v in double-double arithmetic: the product is
@@ -375,5 +428,16 @@ func ddSub(hi, lo, b, v float64) (float64, float64) {
 	s := hi - p
 	bb := s - hi
 	e := (hi - (s - bb)) + (-p - bb) // TwoSum(hi, −p) error
+	return s, lo + (e - pe)
+}
+
+// ddSub1 is ddSub(hi, lo, b, 1) without the FMA: b·1 = b exactly, and the
+// product's error term FMA(b, 1, −b) equals b − b (+0, or NaN when b is
+// infinite or NaN).
+func ddSub1(hi, lo, b float64) (float64, float64) {
+	pe := b - b
+	s := hi - b
+	bb := s - hi
+	e := (hi - (s - bb)) + (-b - bb)
 	return s, lo + (e - pe)
 }

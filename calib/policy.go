@@ -63,7 +63,7 @@ func DefaultPolicy() Policy {
 var defaultPolicy = DefaultPolicy()
 
 // checkNames lists every check in the order it is reported.
-var checkNames = []string{
+var checkNames = [...]string{
 	CheckMinLevels, CheckMandel, CheckLackOfFit, CheckHomoscedasticity,
 	CheckBackCalculation, CheckRSquared, CheckRSE, CheckIntercept,
 	CheckResidualRuns, CheckOutliers,

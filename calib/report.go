@@ -7,17 +7,21 @@ import (
 	"sync/atomic"
 )
 
-// cautions are carried by every Report and every Prediction.
-var cautions = []string{
+// cautionTexts are carried by every Report and every Prediction.
+var cautionTexts = [...]string{
 	"Acceptance is computed against the configured criteria; unless the laboratory configured its own, these are defaults drawn from published guidance (ICH M10, ICH Q2(R2), ISO 8466-1, ISO 11843-2, US EPA SW-846 Method 8000D).",
 	"The laboratory's accreditation, its regulator and its method SOP take precedence over these criteria and over any result computed here.",
 	"Results need review by a qualified person before they are released.",
 }
 
+var cautions = cautionTexts[:]
+
 // Cautions returns the cautions that accompany every fit and every reported
 // concentration. The slice is a fresh copy.
 func Cautions() []string {
-	return append([]string(nil), cautions...)
+	c := make([]string, len(cautions))
+	copy(c, cautions)
+	return c
 }
 
 // weightConvention returns the Report's WeightConvention for n readings;
@@ -52,15 +56,15 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	if err != nil {
 		return nil, err
 	}
-	defer des.release()
 	n, p := len(d.x), f.p
-	r := &Report{
+	m := new(reportMem)
+	r := &m.r
+	*r = Report{
 		Model:              opt.Model,
 		Weighting:          wp.scheme,
 		WeightingRequested: opt.Weighting,
 		WeightCandidates:   scores,
 		WeightConvention:   weightConvention(n),
-		ZeroHandling:       wp.zero,
 		WeightScale:        wscale,
 		WeightFloor:        wp.floor,
 		Variance:           wp.vm,
@@ -71,17 +75,17 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		Levels:             len(d.levels),
 		Confidence:         opt.Confidence,
 		Range:              Range{Low: d.levels[0].x, High: d.levels[len(d.levels)-1].x},
-		Cautions:           Cautions(),
 		Engine:             EngineVersion,
 	}
-	r.Coefficients = f.beta
-	seCov := make([]float64, p+p*p)
-	r.StandardErrors = seCov[:p:p]
-	r.Covariance = make([][]float64, p)
-	covBuf := seCov[p:]
+	m.cautions = cautionTexts
+	r.Cautions = m.cautions[:]
+	r.Coefficients = m.coef[:p:p]
+	copy(r.Coefficients, f.beta)
+	r.StandardErrors = m.se[:p:p]
+	r.Covariance = m.covRows[:p:p]
 	s2 := f.s * f.s
 	for j := 0; j < p; j++ {
-		r.Covariance[j] = covBuf[j*p : (j+1)*p : (j+1)*p]
+		r.Covariance[j] = m.cov[j*p : (j+1)*p : (j+1)*p]
 		for k := 0; k < p; k++ {
 			r.Covariance[j][k] = s2 * f.xtwx[j*p+k]
 		}
@@ -105,17 +109,19 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	for i, pt := range points {
 		pr := &r.Points[i]
 		pr.Level, pr.X, pr.Y, pr.Excluded = pt.Level, pt.X, pt.Y, pt.Excluded
-		basis(r.Model, pt.X, v[:])
-		for j := 0; j < p; j++ {
-			pr.Fitted += r.Coefficients[j] * v[j]
+		if pt.Excluded { // the fitted readings get the solution's values below
+			basis(r.Model, pt.X, v[:])
+			for j := 0; j < p; j++ {
+				pr.Fitted += r.Coefficients[j] * v[j]
+			}
+			pr.Residual = pt.Y - pr.Fitted
 		}
-		pr.Residual = pt.Y - pr.Fitted
 		r.backCalc(pr)
 	}
 	for k, i := range d.idx {
 		pr := &r.Points[i]
 		pr.Weight = w[k]
-		pr.Fitted, pr.Residual = f.fitted[k], f.resid[k]
+		pr.Fitted, pr.Residual = d.y[k]-f.resid[k], f.resid[k]
 		pr.WeightedResidual = math.Sqrt(w[k]) * f.resid[k]
 		pr.Leverage = f.lev[k]
 		if f.s > 0 && 1-f.lev[k] > 1e-10 {
@@ -123,8 +129,18 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 			pr.CooksDistance = pr.Studentized * pr.Studentized * f.lev[k] / (float64(p) * (1 - f.lev[k]))
 		}
 	}
-	r.Limits = computeLimits(r, f)
-	r.Checks = computeChecks(r, d, &des, f, w, opt.Policy)
+	dt := details{t: newText()}
+	defer dt.t.free()
+	start := len(dt.t.b)
+	wp.zeroText(dt.t)
+	dt.keep(&r.ZeroHandling, start, len(dt.t.b))
+	start = len(dt.t.b)
+	r.Limits = computeLimits(r, f, dt.t)
+	if len(dt.t.b) > start {
+		dt.keep(&r.Limits.Detail, start, len(dt.t.b))
+	}
+	r.Checks = computeChecks(r, d, &des, f, w, opt.Policy, m.checks[:0], &dt)
+	dt.done()
 	r.Verdict = verdict(r.Checks)
 	if !r.finite() {
 		return nil, inputErr("points", "values are outside the numerically usable range")
@@ -132,12 +148,51 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	return r, nil
 }
 
+// reportMem is a Report together with the fixed-size storage its slices
+// point to, so that build makes them in one allocation.
+type reportMem struct {
+	r        Report
+	coef, se [3]float64
+	cov      [9]float64
+	covRows  [3][]float64
+	checks   [len(checkNames)]Check
+	cautions [len(cautionTexts)]string
+}
+
+// details builds the Detail texts of one report in one text and turns them
+// into strings with a single allocation: a writer appends its text, keep
+// records the field it belongs to and where it lies, and done sets every
+// kept field to its part of one string.
+type details struct {
+	t     *text
+	n     int
+	field [16]*string
+	span  [16][2]int
+}
+
+// keep records that t.b[a:b] is the text of *field.
+func (d *details) keep(field *string, a, b int) {
+	if d.n == len(d.field) {
+		*field = string(d.t.b[a:b])
+		return
+	}
+	d.field[d.n], d.span[d.n] = field, [2]int{a, b}
+	d.n++
+}
+
+// done sets every kept field.
+func (d *details) done() {
+	s := string(d.t.b)
+	for i := 0; i < d.n; i++ {
+		*d.field[i] = s[d.span[i][0]:d.span[i][1]]
+	}
+}
+
 // fitDesign factorises once for the model and, where the data allow, the
 // line and the quadratic that Mandel's test and the intercept test compare
 // (columns [1, x, x²], or [x, 1, x²] for the origin model), and fits the
 // model from it. If the extra columns are not usable (x² overflows), the
 // model's own columns are factorised and those checks are not computed.
-// The caller releases des when it no longer needs it (on success only).
 func fitDesign(des *design, m Model, d *dataset, w []float64) (lsq, error) {
 	n, k := len(d.x), len(d.levels)
 	var ext []int
@@ -153,18 +208,15 @@ func fitDesign(des *design, m Model, d *dataset, w []float64) (lsq, error) {
 	default:
 		ext = powers(m)
 	}
-	err := des.init(ext, d.x, d.y, w)
+	buf := d.take(designLen(n, len(ext)))
+	err := des.init(ext, d.x, d.y, w, buf)
 	if err != nil && len(ext) > nParams(m) {
-		err = des.init(powers(m), d.x, d.y, w)
+		err = des.init(powers(m), d.x, d.y, w, buf)
 	}
 	if err != nil {
 		return lsq{}, err
 	}
-	f, err := des.fit(m)
-	if err != nil {
-		des.release()
-	}
-	return f, err
+	return des.fitInto(m, d.take(fitLen(nParams(m), n)))
 }
 
 // backCalc reads a point's concentration back from the curve and sets its
@@ -274,7 +326,10 @@ func FailedReport(points []Point, opt Options, cause error) *Report {
 	for _, name := range checkNames {
 		c := Check{Name: name, Source: checkSource(name, opt.Model), Mandatory: opt.Policy.mandatory(name)}
 		if name == CheckMinLevels {
-			c = minLevelsCheck(xs, opt.Policy)
+			t := newText()
+			c = minLevelsCheck(xs, opt.Policy, t)
+			c.Detail = t.str()
+			t.free()
 			c.Mandatory = opt.Policy.mandatory(name)
 		} else {
 			c.Detail = "Not computed: " + why + "."
@@ -308,19 +363,23 @@ func (r *Report) finite() bool {
 			return false
 		}
 	}
+	// The points and checks, which are most of the numbers, are summed
+	// in one pass without a slice per point (v − v is 0 for every finite v
+	// and NaN otherwise, and a sum of zeros is 0).
+	var s float64
 	for i := range r.Points {
 		p := &r.Points[i]
-		if !finite(p.X, p.Y, p.Weight, p.Fitted, p.Residual, p.WeightedResidual, p.Leverage,
-			p.Studentized, p.CooksDistance, p.BackCalculated, p.RelativeErrorPct) {
-			return false
-		}
+		s += (p.X - p.X) + (p.Y - p.Y) + (p.Weight - p.Weight) + (p.Fitted - p.Fitted) +
+			(p.Residual - p.Residual) + (p.WeightedResidual - p.WeightedResidual) +
+			(p.Leverage - p.Leverage) + (p.Studentized - p.Studentized) +
+			(p.CooksDistance - p.CooksDistance) + (p.BackCalculated - p.BackCalculated) +
+			(p.RelativeErrorPct - p.RelativeErrorPct)
 	}
-	for _, c := range r.Checks {
-		if !finite(c.Statistic, c.Limit) {
-			return false
-		}
+	for i := range r.Checks {
+		c := &r.Checks[i]
+		s += (c.Statistic - c.Statistic) + (c.Limit - c.Limit)
 	}
-	return true
+	return s == 0
 }
 
 // finite reports whether every v is neither NaN nor ±Inf (v − v is NaN for
@@ -361,8 +420,8 @@ func (t *text) free() { textPool.Put(t) }
 
 func (t *text) s(v string) *text { t.b = append(t.b, v...); return t }
 
-// g appends v with six significant digits.
-func (t *text) g(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 6, 64); return t }
+// g appends v with six significant digits (as fmtG).
+func (t *text) g(v float64) *text { t.b = appendG6(t.b, v); return t }
 
 // gc appends v exactly as g does, from a small cache: for the values that
 // recur run after run (policy thresholds and t and F quantiles), whose
@@ -381,7 +440,19 @@ func cachedG(v float64) string {
 // g10 appends v with ten significant digits.
 func (t *text) g10(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 10, 64); return t }
 
-func (t *text) i(v int) *text { t.b = strconv.AppendInt(t.b, int64(v), 10); return t }
+// i appends v in decimal (as strconv.Itoa); the counts in the texts are
+// mostly below 100, which take a short path.
+func (t *text) i(v int) *text {
+	if uint(v) < 100 {
+		if v >= 10 {
+			t.b = append(t.b, byte('0'+v/10))
+		}
+		t.b = append(t.b, byte('0'+v%10))
+		return t
+	}
+	t.b = strconv.AppendInt(t.b, int64(v), 10)
+	return t
+}
 
 // point names a reading for QA staff: its level label, index and x.
 func (t *text) point(p *PointResult, i int) *text {

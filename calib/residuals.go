@@ -13,7 +13,7 @@ import (
 // indicate curvature, so the test is one-sided: P(R ≤ r_obs) from the exact
 // distribution against RunsAlpha. Limit is the largest significant number
 // of runs (0 when none is: too few residuals of a sign).
-func runsCheck(r *Report, d *dataset, f lsq, pol Policy) Check {
+func runsCheck(r *Report, d *dataset, f lsq, pol Policy, t *text) Check {
 	// d.order is sorted by x; sort each level's readings by y (insertion
 	// sort: a level holds a few replicates). Readings with equal x and y
 	// have equal residuals, so any such order gives the same runs.
@@ -81,8 +81,6 @@ func runsCheck(r *Report, d *dataset, f lsq, pol Policy) Check {
 		}
 	}
 	c := Check{Name: CheckResidualRuns, Statistic: float64(runs), Limit: float64(crit), Computed: true, Passed: pv > pol.RunsAlpha}
-	t := newText()
-	defer t.free()
 	t.i(runs).s(" runs of residual signs (").i(n1).s(" positive, ").i(n2).s(" negative), P(R ≤ ").i(runs).s(") = ").g(pv)
 	if c.Passed {
 		t.s(" > ").gc(pol.RunsAlpha).s(": no sign of systematic curvature.")
@@ -92,7 +90,6 @@ func runsCheck(r *Report, d *dataset, f lsq, pol Policy) Check {
 	if crit == 0 {
 		t.s(" With so few residuals of each sign no run count is significant; the test has no power here.")
 	}
-	c.Detail = t.str()
 	return c
 }
 
@@ -174,7 +171,7 @@ func lchoose(n, k int) float64 {
 // outlierCheck: every fitted reading must have |internally studentised
 // residual| ≤ OutlierStudentized and Cook's distance ≤ OutlierCooksD
 // (common practice). Statistic is the largest |studentised residual|.
-func outlierCheck(r *Report, d *dataset, pol Policy) Check {
+func outlierCheck(r *Report, d *dataset, pol Policy, t *text) Check {
 	maxR, maxD := 0.0, 0.0
 	var bad *text // the flagged readings, taken from the pool when there is one
 	defer func() {
@@ -204,8 +201,6 @@ func outlierCheck(r *Report, d *dataset, pol Policy) Check {
 	}
 	c := Check{Name: CheckOutliers, Statistic: maxR, Limit: pol.OutlierStudentized, Computed: true,
 		Passed: maxR <= pol.OutlierStudentized && maxD <= pol.OutlierCooksD}
-	t := newText()
-	defer t.free()
 	t.s("Largest |studentised residual| ").g(maxR).s(" (limit ").gc(pol.OutlierStudentized).
 		s("), largest Cook's distance ").g(maxD).s(" (limit ").gc(pol.OutlierCooksD).s(").")
 	if bad != nil {
@@ -214,6 +209,5 @@ func outlierCheck(r *Report, d *dataset, pol Policy) Check {
 	if lev1 > 0 {
 		t.s(" ").i(lev1).s(" reading(s) have leverage 1 (the curve passes through them), so their residuals cannot be studentised.")
 	}
-	c.Detail = t.str()
 	return c
 }

@@ -1,9 +1,6 @@
 package calib
 
-import (
-	"math"
-	"strconv"
-)
+import "math"
 
 // weightPlan is everything needed to compute the raw weight of a reading,
 // standard or unknown, under one scheme.
@@ -11,7 +8,23 @@ type weightPlan struct {
 	scheme Weighting
 	floor  float64 // floor on |x| (x schemes), |y| (y schemes) or the SD (1/s²)
 	vm     VarianceModel
-	zero   string // the ZeroHandling text
+	zeros  int // fitted readings at x = 0 or y = 0 (1/x, 1/y schemes) or levels with SD 0 (1/s²)
+}
+
+// zeroText writes the plan's ZeroHandling text to t.
+func (wp weightPlan) zeroText(t *text) *text {
+	switch wp.scheme {
+	case WeightInvX, WeightInvX2:
+		return t.s("a zero concentration is weighted as the smallest non-zero concentration among the fitted standards (").
+			g(wp.floor).s("); ").i(wp.zeros).s(" fitted reading(s) at zero; no standard is dropped")
+	case WeightInvY, WeightInvY2:
+		return t.s("weights use |y|; a zero response is weighted as the smallest non-zero |response| among the fitted standards (").
+			g(wp.floor).s("); ").i(wp.zeros).s(" fitted reading(s) with zero response; no standard is dropped")
+	case WeightInvS2:
+		return t.s("each standard is weighted by 1/s² of its level's replicates; a level SD of zero is replaced by the smallest non-zero level SD (").
+			g(wp.floor).s("); ").i(wp.zeros).s(" level(s) with zero SD; an unknown's SD comes from s(x) = C0 + C1·x, floored at the same value")
+	}
+	return t.s("none needed: unweighted fit (every weight 1)")
 }
 
 // relWeight returns the raw weight of a value v (|x|, |y| or an SD) relative
@@ -77,31 +90,24 @@ func (vm VarianceModel) sd(x float64) float64 {
 // the level SDs by ordinary least squares so that an unknown's weight can be
 // computed, floored at that same smallest level SD.
 func planWeights(scheme Weighting, d *dataset) (weightPlan, []float64, error) {
+	return planWeightsInto(scheme, d, make([]float64, len(d.x)))
+}
+
+// planWeightsInto is planWeights into raw (one per fitted reading).
+func planWeightsInto(scheme Weighting, d *dataset, raw []float64) (weightPlan, []float64, error) {
 	wp := weightPlan{scheme: scheme}
-	n := len(d.x)
-	raw := make([]float64, n)
+	raw = raw[:len(d.x)]
 	switch scheme {
 	case WeightNone:
 		for i := range raw {
 			raw[i] = 1
 		}
-		wp.zero = "none needed: unweighted fit (every weight 1)"
 		return wp, raw, nil
 	case WeightInvX, WeightInvX2:
-		var zeros int
-		wp.floor, zeros = powerWeights(d.x, raw, scheme == WeightInvX2)
-		t := newText()
-		wp.zero = t.s("a zero concentration is weighted as the smallest non-zero concentration among the fitted standards (").
-			g(wp.floor).s("); ").i(zeros).s(" fitted reading(s) at zero; no standard is dropped").str()
-		t.free()
+		wp.floor, wp.zeros = powerWeights(d.x, raw, scheme == WeightInvX2)
 		return wp, raw, nil
 	case WeightInvY, WeightInvY2:
-		var zeros int
-		wp.floor, zeros = powerWeights(d.y, raw, scheme == WeightInvY2)
-		t := newText()
-		wp.zero = t.s("weights use |y|; a zero response is weighted as the smallest non-zero |response| among the fitted standards (").
-			g(wp.floor).s("); ").i(zeros).s(" fitted reading(s) with zero response; no standard is dropped").str()
-		t.free()
+		wp.floor, wp.zeros = powerWeights(d.y, raw, scheme == WeightInvY2)
 		return wp, raw, nil
 	case WeightInvS2:
 		return planInvS2(d, raw)
@@ -155,9 +161,7 @@ func planInvS2(d *dataset, raw []float64) (weightPlan, []float64, error) {
 		c1 = sxs / sxx
 	}
 	wp.vm = VarianceModel{Kind: "linear_sd", C0: ms - c1*mx, C1: c1, Floor: floor}
-	wp.floor = floor
-	wp.zero = "each standard is weighted by 1/s² of its level's replicates; a level SD of zero is replaced by the smallest non-zero level SD (" +
-		fmtG(floor) + "); " + strconv.Itoa(zeros) + " level(s) with zero SD; an unknown's SD comes from s(x) = C0 + C1·x, floored at the same value"
+	wp.floor, wp.zeros = floor, zeros
 	return wp, raw, nil
 }
 
