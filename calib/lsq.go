@@ -423,7 +423,11 @@ func residualsDD(model Model, beta, x, y, e []float64) {
 // ddSub returns (hi, lo) − b·v in double-double arithmetic: the product is
 // split exactly with FMA, the sum with TwoSum.
 func ddSub(hi, lo, b, v float64) (float64, float64) {
-	p := b * v
+	// The conversion rounds b·v to float64 and so forbids the compiler to
+	// fuse it into hi − b·v (the Go spec allows fusion across statements;
+	// arm64, or amd64 built with GOAMD64=v3, would do it), which would break
+	// the exact split below.
+	p := float64(b * v)
 	pe := math.FMA(b, v, -p) // b·v = p + pe exactly
 	s := hi - p
 	bb := s - hi
