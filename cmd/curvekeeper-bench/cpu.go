@@ -33,7 +33,7 @@ func (a cpuTimes) plus(b cpuTimes) cpuTimes {
 func cpuNow(serverPID int) cpuTimes {
 	var c cpuTimes
 	if serverPID > 0 {
-		c.server, _ = procCPU(strconv.Itoa(serverPID))
+		c.server, _ = procCPU(strconv.Itoa(serverPID), false)
 	}
 	var ru syscall.Rusage
 	if syscall.Getrusage(syscall.RUSAGE_SELF, &ru) == nil {
@@ -43,7 +43,10 @@ func cpuNow(serverPID int) cpuTimes {
 	for _, d := range dirs {
 		if n := d.Name(); n[0] >= '0' && n[0] <= '9' {
 			if comm, _ := os.ReadFile("/proc/" + n + "/comm"); strings.TrimSpace(string(comm)) == "postgres" {
-				t, _ := procCPU(n)
+				// With the times of its exited children, so that a backend
+				// or worker that ends during a load still counts (the
+				// postmaster reaps them; live ones count themselves).
+				t, _ := procCPU(n, true)
 				c.postgres += t
 			}
 		}
@@ -51,8 +54,9 @@ func cpuNow(serverPID int) cpuTimes {
 	return c
 }
 
-// procCPU is utime + stime of process pid from /proc/pid/stat.
-func procCPU(pid string) (time.Duration, error) {
+// procCPU is utime + stime of process pid from /proc/pid/stat, plus cutime
+// + cstime (its reaped children) when children is set.
+func procCPU(pid string, children bool) (time.Duration, error) {
 	raw, err := os.ReadFile("/proc/" + pid + "/stat")
 	if err != nil {
 		return 0, err
@@ -63,15 +67,24 @@ func procCPU(pid string) (time.Duration, error) {
 		return 0, fmt.Errorf("/proc/%s/stat: no command name", pid)
 	}
 	f := strings.Fields(s[end+1:])
-	if len(f) < 13 {
+	// f[0] is field 3 (state): utime, stime, cutime, cstime are fields
+	// 14 to 17.
+	if len(f) < 15 {
 		return 0, fmt.Errorf("/proc/%s/stat: %d fields", pid, len(f))
 	}
-	ut, err1 := strconv.ParseInt(f[11], 10, 64)
-	st, err2 := strconv.ParseInt(f[12], 10, 64)
-	if err1 != nil || err2 != nil {
-		return 0, fmt.Errorf("/proc/%s/stat: bad times", pid)
+	last := 12
+	if children {
+		last = 14
 	}
-	return time.Duration(ut+st) * time.Second / clockTicks, nil
+	var ticks int64
+	for i := 11; i <= last; i++ {
+		v, err := strconv.ParseInt(f[i], 10, 64)
+		if err != nil {
+			return 0, fmt.Errorf("/proc/%s/stat: field %d: %v", pid, i+3, err)
+		}
+		ticks += v
+	}
+	return time.Duration(ticks) * time.Second / clockTicks, nil
 }
 
 // clockTicks is the kernel's USER_HZ, the unit of /proc/pid/stat times; 100
