@@ -114,9 +114,14 @@ func TestBrowserReviewFlow(t *testing.T) {
 		chromedp.SendKeys(chromedp.ID("f-instrument"), uiInstrument),
 		chromedp.SetValue(chromedp.ID("f-verdict"), "fail"),
 		chromedp.SetValue(chromedp.ID("f-from"), uiStart.Format("2006-01-02")),
-		chromedp.Click(chromedp.CSS(`form.filters button[type="submit"]`)),
-		chromedp.WaitVisible(chromedp.CSS(`a[href="/ui/curves/`+e.failing+`"]`)),
 	)
+	// The failing curve is on the unfiltered list too, so waiting for its
+	// link alone could pass before the filtered page had loaded (it did on a
+	// loaded machine); RunResponse waits for the navigation the click makes.
+	if _, err := chromedp.RunResponse(ctx, chromedp.Click(chromedp.CSS(`form.filters button[type="submit"]`))); err != nil {
+		t.Fatalf("submit the filter: %v", err)
+	}
+	do("filtered list", chromedp.WaitVisible(chromedp.CSS(`a[href="/ui/curves/`+e.failing+`"]`)))
 	if u := location(); !strings.Contains(u, "verdict=fail") || !strings.Contains(u, "instrument="+uiInstrument) {
 		t.Errorf("the filter form went to %s", u)
 	}
