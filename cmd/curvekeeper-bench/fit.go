@@ -43,7 +43,7 @@ func (h *harness) fit(ctx context.Context) error {
 	}
 	h.progress("fit: BenchmarkFullReport, then statsmodels")
 	gocmd := exec.CommandContext(ctx, h.calibTest, "-test.run", "^$", "-test.bench", "^BenchmarkFullReport$",
-		"-test.benchtime", strconv.Itoa(h.cfg.FitLoops)+"x", "-test.count", "3")
+		"-test.benchtime", strconv.Itoa(h.cfg.FitLoops)+"x", "-test.count", "7")
 	gocmd.Dir = filepath.Join(h.root, "calib")
 	goOut, err := gocmd.CombinedOutput()
 	if err != nil {
@@ -65,7 +65,7 @@ func (h *harness) fit(ctx context.Context) error {
 	}
 	fmt.Fprintln(h.out, line{Scenario: "fit", Service: 1e9 / goNs, Baseline: 1e9 / pyNs, Unit: "fits/s",
 		Target: target{"ratio", ">=", 8}, Extra: []string{kv("service_ns_op", goNs), kv("baseline_ns_op", pyNs),
-			kv("service_is", "calib full report + 1 prediction (best of 3)"), kv("baseline_is", "statsmodels WLS fit (best of 7)")}})
+			kv("service_is", "calib full report + 1 prediction (best of 7)"), kv("baseline_is", "statsmodels WLS fit (best of 7)")}})
 	return nil
 }
 
