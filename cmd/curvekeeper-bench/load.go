@@ -22,6 +22,12 @@ type load struct {
 	Duration time.Duration
 	// Do performs request number seq (0-based, unique across workers).
 	Do func(ctx context.Context, seq int) error
+	// Rate, when positive, paces the load open-loop: request seq is due at
+	// seq/Rate seconds after the start, its worker waits for that moment,
+	// and its latency counts from when it was due (not from when a worker
+	// got to it), so a server that falls behind shows its queue in the
+	// percentiles instead of slowing the load down.
+	Rate float64
 	// ServerPID is the process serving the load, for its CPU time (see
 	// cpu.go); -1 when the load runs inside the harness, 0 to measure none.
 	ServerPID int
@@ -65,6 +71,19 @@ func (l load) run(ctx context.Context) result {
 					break
 				}
 				t0 := time.Now()
+				if l.Rate > 0 {
+					due := start.Add(time.Duration(float64(seq) / l.Rate * float64(time.Second)))
+					if wait := time.Until(due); wait > 0 {
+						select {
+						case <-time.After(wait):
+						case <-ctx.Done():
+						}
+						if ctx.Err() != nil {
+							break
+						}
+					}
+					t0 = due
+				}
 				err := l.Do(ctx, seq)
 				d := time.Since(t0)
 				if err != nil {
