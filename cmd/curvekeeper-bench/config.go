@@ -64,8 +64,8 @@ func parseConfig(args []string, getenv func(string) string, stderr io.Writer) (c
 
 // setSizes fills the run's sizes. Every load is capped in requests and in
 // time. Budget is the hard deadline of the run after the two binaries are
-// built: the quick run takes about a minute; the full run took 82 s on an
-// idle 2-core machine (the 1,000,000-curve COPY and index rebuild 16 s of
+// built: the quick run takes about a minute; the full run took 103-108 s on a
+// 2-core machine (the 1,000,000-curve COPY and index rebuild 14-16 s of
 // it). When the machine is shared and busy the load has taken minutes, so
 // a run that would pass 5 minutes stops with an error rather than report.
 func (c *config) setSizes() {
