@@ -7,15 +7,13 @@ import (
 	"log/slog"
 	"net/http"
 	"net/http/httptest"
-	"os"
-	"strconv"
-	"strings"
 	"sync/atomic"
 	"syscall"
 	"testing"
 	"time"
 
 	"curvekeeper/api"
+	"curvekeeper/cmd/curvekeeper-bench/procstat"
 	"curvekeeper/store/dbtest"
 )
 
@@ -132,31 +130,5 @@ func BenchmarkIngestRoute(b *testing.B) {
 	b.ReportMetric(float64(postgresCPU()-pg0)/float64(b.N), "pg-cpu-ns/op")
 }
 
-// postgresCPU is the user + system CPU time of every process called
-// postgres on this machine, in ns (clock ticks of 10 ms).
-func postgresCPU() int64 {
-	dirs, _ := os.ReadDir("/proc")
-	var ticks int64
-	for _, d := range dirs {
-		if d.Name()[0] < '0' || d.Name()[0] > '9' {
-			continue
-		}
-		raw, err := os.ReadFile("/proc/" + d.Name() + "/stat")
-		if err != nil {
-			continue
-		}
-		s := string(raw)
-		open, close := strings.IndexByte(s, '('), strings.LastIndexByte(s, ')')
-		if open < 0 || close < open || s[open+1:close] != "postgres" {
-			continue
-		}
-		f := strings.Fields(s[close+1:])
-		if len(f) < 13 {
-			continue
-		}
-		ut, _ := strconv.ParseInt(f[11], 10, 64)
-		st, _ := strconv.ParseInt(f[12], 10, 64)
-		ticks += ut + st
-	}
-	return ticks * 10_000_000
-}
+// postgresCPU is procstat.PostgresCPU in ns.
+func postgresCPU() int64 { return int64(procstat.PostgresCPU()) }

@@ -1,12 +1,10 @@
 package main
 
 import (
-	"fmt"
-	"os"
-	"strconv"
-	"strings"
 	"syscall"
 	"time"
+
+	"curvekeeper/cmd/curvekeeper-bench/procstat"
 )
 
 // cpuTimes is CPU time (user + system) used so far by the processes a load
@@ -33,63 +31,15 @@ func (a cpuTimes) plus(b cpuTimes) cpuTimes {
 func cpuNow(serverPID int) cpuTimes {
 	var c cpuTimes
 	if serverPID > 0 {
-		c.server, _ = procCPU(strconv.Itoa(serverPID), false)
+		c.server, _ = procstat.ProcessCPU(serverPID, false)
 	}
 	var ru syscall.Rusage
 	if syscall.Getrusage(syscall.RUSAGE_SELF, &ru) == nil {
 		c.harness = time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
 	}
-	dirs, _ := os.ReadDir("/proc")
-	for _, d := range dirs {
-		if n := d.Name(); n[0] >= '0' && n[0] <= '9' {
-			if comm, _ := os.ReadFile("/proc/" + n + "/comm"); strings.TrimSpace(string(comm)) == "postgres" {
-				// With the times of its exited children, so that a backend
-				// or worker that ends during a load still counts (the
-				// postmaster reaps them; live ones count themselves).
-				t, _ := procCPU(n, true)
-				c.postgres += t
-			}
-		}
-	}
+	c.postgres = procstat.PostgresCPU()
 	return c
 }
-
-// procCPU is utime + stime of process pid from /proc/pid/stat, plus cutime
-// + cstime (its reaped children) when children is set.
-func procCPU(pid string, children bool) (time.Duration, error) {
-	raw, err := os.ReadFile("/proc/" + pid + "/stat")
-	if err != nil {
-		return 0, err
-	}
-	s := string(raw)
-	end := strings.LastIndexByte(s, ')')
-	if end < 0 {
-		return 0, fmt.Errorf("/proc/%s/stat: no command name", pid)
-	}
-	f := strings.Fields(s[end+1:])
-	// f[0] is field 3 (state): utime, stime, cutime, cstime are fields
-	// 14 to 17.
-	if len(f) < 15 {
-		return 0, fmt.Errorf("/proc/%s/stat: %d fields", pid, len(f))
-	}
-	last := 12
-	if children {
-		last = 14
-	}
-	var ticks int64
-	for i := 11; i <= last; i++ {
-		v, err := strconv.ParseInt(f[i], 10, 64)
-		if err != nil {
-			return 0, fmt.Errorf("/proc/%s/stat: field %d: %v", pid, i+3, err)
-		}
-		ticks += v
-	}
-	return time.Duration(ticks) * time.Second / clockTicks, nil
-}
-
-// clockTicks is the kernel's USER_HZ, the unit of /proc/pid/stat times; 100
-// on every Linux architecture Go runs on.
-const clockTicks = 100
 
 // cpuPerRequest are the key=value fields of a result's CPU per request, in
 // µs, with prefix ("" or "baseline_").
