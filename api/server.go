@@ -78,7 +78,7 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 	if err != nil {
 		return nil, err
 	}
-	s := &Server{cfg: cfg, db: db, log: log, echo: e, metrics: newMetrics(),
+	s := &Server{cfg: cfg, db: db, log: log, echo: e, metrics: newMetrics(db),
 		scopes: newScopeTable(doc), curves: newCurveCache(1024)}
 	if cfg.RateLimit > 0 {
 		s.limiter = newTokenLimiter(cfg.RateLimit, cfg.RateBurst)

@@ -90,3 +90,12 @@ func pgCode(err error) string {
 	}
 	return ""
 }
+
+// pgConstraint returns the constraint err names, or "" when it names none.
+func pgConstraint(err error) string {
+	var pgErr *pgconn.PgError
+	if errors.As(err, &pgErr) {
+		return pgErr.ConstraintName
+	}
+	return ""
+}

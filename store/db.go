@@ -21,6 +21,9 @@ type DB struct {
 
 	lookupsOnce  sync.Once
 	tokenLookups *tokenLookups // see token_lookups.go
+
+	writesOnce sync.Once
+	runWrites  *runWrites // see run_writes.go
 }
 
 // AppRole is the role the service works as (migrations/000005_app_role):

@@ -274,7 +274,9 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 
 // CreateRun stores a run, its readings and samples, its fitted curves (each
 // pending review) and their audit rows in one transaction, and returns the
-// ids it assigned. The run's rows go to the database in one batch.
+// ids it assigned. Runs that arrive together are written together, in one
+// transaction per group (run_writes.go); a run whose group fails is written
+// alone, by createRunAlone, which is what a run's write means.
 //
 // With an IdempotencyKey the key is claimed first, in the same transaction:
 // a concurrent request with the same key (and token) waits for this one to
@@ -283,24 +285,40 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 // different hash the result is KindInvalid ("Idempotency-Key reused with a
 // different body").
 func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (*RunCreated, error) {
-	if err := checkRun(&in, curves); err != nil {
+	w, created, err := prepareRun(ctx, in, curves)
+	if err != nil {
 		return nil, err
+	}
+	switch err := db.writes().do(w); {
+	case err == nil:
+		return created, nil
+	case !errors.Is(err, errWriteAlone):
+		return nil, err
+	}
+	return db.createRunAlone(ctx, w, created)
+}
+
+// prepareRun checks a run and makes everything its write needs but the
+// database: ids, marshalled report, payload and response.
+func prepareRun(ctx context.Context, in RunInput, curves []CurveInput) (*runWrite, *RunCreated, error) {
+	if err := checkRun(&in, curves); err != nil {
+		return nil, nil, err
 	}
 	runID, err := newID()
 	if err != nil {
-		return nil, err
+		return nil, nil, err
 	}
 	created := &RunCreated{ID: runID, Curves: []CreatedCurve{}}
 	prepared := make([]preparedCurve, len(curves))
 	for i, c := range curves {
 		if prepared[i], err = prepareCurve(c); err != nil {
-			return nil, err
+			return nil, nil, err
 		}
 		created.Curves = append(created.Curves, CreatedCurve{ID: prepared[i].id, Analyte: c.Analyte, Verdict: prepared[i].verdict})
 	}
 	body, err := json.Marshal(created)
 	if err != nil {
-		return nil, fmt.Errorf("store: marshal run response: %w", err)
+		return nil, nil, fmt.Errorf("store: marshal run response: %w", err)
 	}
 	samples := in.Samples
 	if samples == nil {
@@ -310,14 +328,22 @@ func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (
 		Instrument: in.Instrument, AcquiredAt: in.AcquiredAt, Operator: in.Operator,
 		SourceFormat: in.SourceFormat, Standards: in.Standards, Samples: samples})
 	if err != nil {
-		return nil, fmt.Errorf("store: marshal run payload: %w", err)
+		return nil, nil, fmt.Errorf("store: marshal run payload: %w", err)
 	}
+	return &runWrite{ctx: ctx, in: &in, runID: runID, payload: payload, body: body, curves: prepared}, created, nil
+}
+
+// createRunAlone is CreateRun's write in a transaction of its own: the
+// reference for what a run's write means, and the path for every run whose
+// group could not be written (runWrites).
+func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *RunCreated) (*RunCreated, error) {
+	in, runID, prepared := w.in, w.runID, w.curves
 	var replay *RunCreated
-	err = db.inTx(ctx, func(tx pgx.Tx) error {
+	err := db.inTx(ctx, func(tx pgx.Tx) error {
 		replay = nil
 		if in.IdempotencyKey != "" {
 			var claimed bool
-			err := tx.QueryRow(ctx, sqlClaimKey, in.TokenID, in.IdempotencyKey, in.RequestHash, runID, body).Scan(&claimed)
+			err := tx.QueryRow(ctx, sqlClaimKey, in.TokenID, in.IdempotencyKey, in.RequestHash, runID, w.body).Scan(&claimed)
 			if errors.Is(err, pgx.ErrNoRows) {
 				// Someone holds the key and has committed: replay or refuse.
 				replay, err = storedRun(ctx, tx, in.TokenID, in.IdempotencyKey, in.RequestHash)
@@ -331,7 +357,7 @@ func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (
 			}
 		}
 		// A batch is built per attempt: inTx may run this function again.
-		batch, err := runBatch(&in, runID, payload, prepared)
+		batch, err := runBatch(in, runID, w.payload, prepared)
 		if err != nil {
 			return err
 		}
@@ -339,6 +365,12 @@ func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (
 			if pgCode(err) == codeForeignKeyViolation {
 				return &Error{Kind: KindInvalid, Field: "/method",
 					Message: fmt.Sprintf("method %q has no revision %d", in.Method, in.MethodRevision), Err: err}
+			}
+			if pgCode(err) == codeUniqueViolation && pgConstraint(err) == "runs_pkey" {
+				// The run's own id, drawn at random for this request: only
+				// its group can have stored it, whose commit was reported
+				// as failed although it took effect.
+				return errStoredByGroup
 			}
 			if pgCode(err) == codeUniqueViolation {
 				return &Error{Kind: KindInvalid, Field: "/samples",
@@ -349,11 +381,14 @@ func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (
 		// Every sample is quantified against its analyte's curve now, in the
 		// transaction that stores it.
 		events := &eventBuffer{}
-		if err := insertResults(ctx, tx, runID, runResults(&in, prepared), in.Actor, CauseRunCreate, events); err != nil {
+		if err := insertResults(ctx, tx, runID, runResults(in, prepared), in.Actor, CauseRunCreate, events); err != nil {
 			return err
 		}
 		return flushEvents(ctx, tx, events)
 	})
+	if errors.Is(err, errStoredByGroup) {
+		return created, nil
+	}
 	if err != nil {
 		return nil, classify("create run", err)
 	}
@@ -394,35 +429,65 @@ func runBatch(in *RunInput, runID string, payload []byte, curves []preparedCurve
 		b.Queue(sqlInsertSample, runID, i, s.ID, s.Analyte, s.Responses, s.Dilution, s.AcquiredAt)
 	}
 
-	curveIDs := make([]string, len(curves))
-	for i, c := range curves {
-		curveIDs[i] = c.id
+	for _, c := range curves {
 		unit := c.in.Unit
 		b.Queue(sqlInsertCurve, c.id, runID, in.Method, in.MethodRevision, in.Instrument, c.in.Analyte, unit,
 			c.model, c.weighting, c.verdict, c.engine, c.report, in.AcquiredAt, in.Actor,
 			c.scalars.slope, c.scalars.intercept, c.scalars.residualSD, c.scalars.rSquared, c.scalars.lod,
 			c.failed)
 	}
+	audits, err := runAudits(in, runID, curves)
+	if err != nil {
+		return nil, err
+	}
+	for _, a := range audits {
+		b.Queue(sqlInsertAudit, a.actor, a.action, a.entityType, a.entityID, a.detail)
+	}
+	return b, nil
+}
+
+// auditRow is one audit row of a write, its detail marshalled.
+type auditRow struct {
+	actor, action, entityType, entityID string
+	detail                              []byte
+}
+
+// runAudits are the audit rows of a new run: one for the run and one per
+// curve, in that order.
+func runAudits(in *RunInput, runID string, curves []preparedCurve) ([]auditRow, error) {
+	curveIDs := make([]string, len(curves))
+	readings := 0
+	for i, c := range curves {
+		curveIDs[i] = c.id
+	}
+	for _, s := range in.Standards {
+		readings += len(s.Responses)
+	}
 	detail := map[string]any{
 		"method": in.Method, "method_revision": in.MethodRevision, "instrument": in.Instrument,
 		"acquired_at": in.AcquiredAt, "source_format": in.SourceFormat, "standards": len(in.Standards),
-		"readings": len(responses), "samples": len(in.Samples), "curves": curveIDs,
+		"readings": readings, "samples": len(in.Samples), "curves": curveIDs,
 	}
 	if in.IdempotencyKey != "" {
 		detail["idempotency_key"] = in.IdempotencyKey
 	}
-	if err := queueAudit(b, in.Actor, ActionRunCreate, entityRun, runID, detail); err != nil {
+	d, err := auditDetail(detail)
+	if err != nil {
 		return nil, err
 	}
+	out := make([]auditRow, 0, 1+len(curves))
+	out = append(out, auditRow{in.Actor, ActionRunCreate, entityRun, runID, d})
 	for _, c := range curves {
-		if err := queueAudit(b, in.Actor, ActionCurveCreate, entityCurve, c.id, map[string]any{
+		d, err := auditDetail(map[string]any{
 			"run_id": runID, "analyte": c.in.Analyte, "verdict": c.verdict, "status": StatusPendingReview,
 			"model": c.model, "weighting": c.weighting, "engine_version": c.engine,
-		}); err != nil {
+		})
+		if err != nil {
 			return nil, err
 		}
+		out = append(out, auditRow{in.Actor, ActionCurveCreate, entityCurve, c.id, d})
 	}
-	return b, nil
+	return out, nil
 }
 
 // runResults quantifies the samples of a new run against its new curves,

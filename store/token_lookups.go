@@ -102,11 +102,12 @@ func (l *tokenLookups) run(batch []*tokenLookup) {
 
 // sqlTokenLookups answers a batch of (hash, curve) questions in one
 // statement; row i answers question i (1-based). A question whose hash
-// names no token has no row.
+// names no token has no row. The curve ids go as text[] (pgx has no binary
+// encoding of []*string as uuid[] and would first fail trying one).
 const sqlTokenLookups = `
 SELECT q.i, t.id, t.name, t.scopes, t.hash, t.revoked_at,
-       (SELECT c.status FROM curves c WHERE c.id = q.curve)
-FROM unnest($1::bytea[], $2::uuid[]) WITH ORDINALITY AS q(hash, curve, i)
+       (SELECT c.status FROM curves c WHERE c.id = q.curve::uuid)
+FROM unnest($1::bytea[], $2::text[]) WITH ORDINALITY AS q(hash, curve, i)
 JOIN tokens t ON t.hash = q.hash`
 
 // sqlTokenLookupOne is sqlTokenLookups for a single question.
