@@ -8,6 +8,7 @@ import (
 	"math"
 	"net/http"
 	"strconv"
+	"strings"
 	"time"
 
 	"github.com/google/uuid"
@@ -76,6 +77,10 @@ func (h *harness) ingest(ctx context.Context) error {
 	if err := resetPeakRSS(h.svc.pid()); err != nil {
 		return err
 	}
+	writes0, err := runWriteCounts(ctx, h.svc.base)
+	if err != nil {
+		return err
+	}
 	stop := h.profile(ctx, "ingest")
 	for round := 0; round < h.cfg.Rounds; round++ {
 		service := load{Workers: ingestConns, Max: h.cfg.IngestMax, Duration: h.cfg.PhaseTime, ServerPID: h.svc.pid(),
@@ -90,6 +95,10 @@ func (h *harness) ingest(ctx context.Context) error {
 		alternate(ctx, round, &svc, service, &base, baseline)
 	}
 	stop()
+	writes1, err := runWriteCounts(ctx, h.svc.base)
+	if err != nil {
+		return err
+	}
 	if h.rssIngest, err = peakRSS(h.svc.pid()); err != nil {
 		return err
 	}
@@ -100,6 +109,12 @@ func (h *harness) ingest(ctx context.Context) error {
 		Target: target{"ratio", ">=", 0.5}}
 	l.Extra = append(append(latencies("", svc), latencies("baseline_", base)...),
 		kv("clients", ingestConns), kv("runs", svc.N), kv("baseline_runs", base.N))
+	// How the service wrote its runs: in groups of how many on average, and
+	// how many alone after a failed group (none in this load).
+	if groups := writes1.groups - writes0.groups; groups > 0 {
+		l.Extra = append(l.Extra, kv("write_group_runs", float64(writes1.grouped-writes0.grouped)/float64(groups)))
+	}
+	l.Extra = append(l.Extra, kv("writes_alone", writes1.alone-writes0.alone))
 	l.Extra = append(append(l.Extra, cpuPerRequest("", svc)...), cpuPerRequest("baseline_", base)...)
 	fmt.Fprintln(h.out, l)
 	return nil
@@ -200,3 +215,41 @@ func insertBaselineRun(ctx context.Context, pool *pgxpool.Pool, body []byte, seq
 }
 
 func newUUIDv7() (uuid.UUID, error) { return uuid.NewV7() }
+
+// writeCounts are the service's run-write counters (store.RunWriteStats).
+type writeCounts struct{ groups, grouped, alone float64 }
+
+// runWriteCounts reads the run-write counters from the service's /metrics.
+func runWriteCounts(ctx context.Context, base string) (writeCounts, error) {
+	body, err := call(ctx, newClient(1), http.MethodGet, base+"/metrics", "", nil, http.StatusOK)
+	if err != nil {
+		return writeCounts{}, fmt.Errorf("read /metrics: %w", err)
+	}
+	var c writeCounts
+	found := 0
+	for _, line := range strings.Split(string(body), "\n") {
+		name, value, ok := strings.Cut(line, " ")
+		if !ok {
+			continue
+		}
+		var into *float64
+		switch name {
+		case "curvekeeper_run_write_groups_total":
+			into = &c.groups
+		case "curvekeeper_run_writes_grouped_total":
+			into = &c.grouped
+		case "curvekeeper_run_writes_alone_total":
+			into = &c.alone
+		default:
+			continue
+		}
+		if *into, err = strconv.ParseFloat(value, 64); err != nil {
+			return writeCounts{}, fmt.Errorf("/metrics: %s: %w", name, err)
+		}
+		found++
+	}
+	if found != 3 {
+		return writeCounts{}, fmt.Errorf("/metrics: %d of the 3 run-write counters found", found)
+	}
+	return c, nil
+}
