@@ -24,6 +24,8 @@ type DB struct {
 
 	writesOnce sync.Once
 	runWrites  *runWrites // see run_writes.go
+
+	methodDecodes methodDecodes // see methods.go
 }
 
 // AppRole is the role the service works as (migrations/000005_app_role):

@@ -9,6 +9,7 @@ import (
 	"reflect"
 	"slices"
 	"strings"
+	"sync"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -207,6 +208,31 @@ const (
 )
 
 func scanMethod(row pgx.Row) (*Method, error) {
+	return scanMethodVia(row, nil)
+}
+
+// methodDecodes keeps decoded method revisions. A revision never changes
+// (the methods_immutable trigger refuses it), so a revision decoded once
+// decodes the same way every time: the cache is exact on every replica. It
+// saves POST /v1/runs the three JSON decodes of its method's row; the row is
+// still read, so a new revision is seen at once.
+type methodDecodes struct {
+	mu sync.Mutex
+	m  map[methodKey]*Method
+}
+
+type methodKey struct {
+	name     string
+	revision int
+}
+
+// maxMethodDecodes bounds the cache; it starts over when full (a laboratory
+// has tens of methods, each with a few revisions).
+const maxMethodDecodes = 1024
+
+// scanMethodVia is scanMethod taking the decoded JSON columns from cache
+// when it holds the revision; cache may be nil.
+func scanMethodVia(row pgx.Row, cache *methodDecodes) (*Method, error) {
 	var (
 		m                    Method
 		model, weighting     string
@@ -218,6 +244,18 @@ func scanMethod(row pgx.Row) (*Method, error) {
 		return nil, err
 	}
 	m.Model, m.Weighting = calib.Model(model), calib.Weighting(weighting)
+	key := methodKey{m.Name, m.Revision}
+	if cache != nil {
+		cache.mu.Lock()
+		c := cache.m[key]
+		cache.mu.Unlock()
+		if c != nil {
+			// A copy the caller may change.
+			m.Analytes, m.Acceptance, m.QC = slices.Clone(c.Analytes), c.Acceptance, c.QC
+			m.Acceptance.Mandatory = slices.Clone(c.Acceptance.Mandatory)
+			return &m, nil
+		}
+	}
 	if err := json.Unmarshal(analytes, &m.Analytes); err != nil {
 		return nil, fmt.Errorf("decode analytes of method %s/%d: %w", m.Name, m.Revision, err)
 	}
@@ -228,6 +266,16 @@ func scanMethod(row pgx.Row) (*Method, error) {
 		return nil, fmt.Errorf("decode qc of method %s/%d: %w", m.Name, m.Revision, err)
 	}
 	m.QC = m.QC.withDefaults()
+	if cache != nil {
+		c := m
+		c.Analytes, c.Acceptance.Mandatory = slices.Clone(m.Analytes), slices.Clone(m.Acceptance.Mandatory)
+		cache.mu.Lock()
+		if cache.m == nil || len(cache.m) >= maxMethodDecodes {
+			cache.m = map[methodKey]*Method{}
+		}
+		cache.m[key] = &c
+		cache.mu.Unlock()
+	}
 	return &m, nil
 }
 

@@ -63,7 +63,7 @@ func (db *DB) ReadForRun(ctx context.Context, q RunReadsQuery) (*RunReads, error
 		b.Queue(sqlRecentApprovedSlopes, q.Instrument, a, q.Before, q.Limit)
 	}
 	br := db.Pool.SendBatch(ctx, b)
-	out, err := readRunReads(br, q, analytes)
+	out, err := db.readRunReads(br, q, analytes)
 	if cerr := br.Close(); err == nil && cerr != nil {
 		err = classify("read for run", cerr)
 	}
@@ -74,7 +74,7 @@ func (db *DB) ReadForRun(ctx context.Context, q RunReadsQuery) (*RunReads, error
 }
 
 // readRunReads reads the results of ReadForRun's batch in the order queued.
-func readRunReads(br pgx.BatchResults, q RunReadsQuery, analytes []string) (*RunReads, error) {
+func (db *DB) readRunReads(br pgx.BatchResults, q RunReadsQuery, analytes []string) (*RunReads, error) {
 	out := &RunReads{}
 	if q.Key != "" {
 		replay, err := decodeStoredRun(br.QueryRow(), q.RequestHash)
@@ -86,7 +86,7 @@ func readRunReads(br pgx.BatchResults, q RunReadsQuery, analytes []string) (*Run
 			return nil, err
 		}
 	}
-	m, err := scanMethod(br.QueryRow())
+	m, err := scanMethodVia(br.QueryRow(), &db.methodDecodes)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, Errorf(KindNotFound, "method %q not found", q.Method)
 	}

@@ -215,3 +215,42 @@ func TestGroupWithABadRunFallsBack(t *testing.T) {
 		t.Errorf("audit rows = %d, want 9 (a run and two curves, three times)", n)
 	}
 }
+
+// TestReadForRunMethodDecodes reads a method for runs through the cache of
+// decoded revisions: the same as GetMethod each time, unchanged by what a
+// caller does with its copy, and a new revision seen at once.
+func TestReadForRunMethodDecodes(t *testing.T) {
+	ctx := context.Background()
+	db := newDB(t)
+	m := mustMethod(t, db, "nitrate-ic")
+	q := store.RunReadsQuery{Method: m.Name, Instrument: "ic-02", Analytes: []string{"nitrate"}, Before: baseTime, Limit: 5}
+	for i := range 3 {
+		reads, err := db.ReadForRun(ctx, q)
+		if err != nil {
+			t.Fatal(err)
+		}
+		want, err := db.GetMethod(ctx, m.Name)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !reflect.DeepEqual(reads.Method, want) {
+			t.Fatalf("read %d: method %+v, want %+v", i, reads.Method, want)
+		}
+		// The caller's copy is its own.
+		reads.Method.Analytes[0].Unit = "changed"
+		reads.Method.Acceptance.Mandatory = append(reads.Method.Acceptance.Mandatory[:0], "changed")
+	}
+	in := methodInput(m.Name)
+	in.Confidence = 0.99
+	revised, created, err := db.CreateMethod(ctx, in, "admin")
+	if err != nil || !created || revised.Revision != 2 {
+		t.Fatalf("revise: %+v, %v, %v", revised, created, err)
+	}
+	reads, err := db.ReadForRun(ctx, q)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if reads.Method.Revision != 2 || reads.Method.Confidence != 0.99 {
+		t.Errorf("after the revision: revision %d confidence %g, want 2 and 0.99", reads.Method.Revision, reads.Method.Confidence)
+	}
+}
