@@ -156,33 +156,41 @@ func (rc runCase) request() *http.Request {
 	return req
 }
 
-// runDecisions returns the run fast path's decision on rc and, when it
-// accepts, the run it decoded; and the spec validator's decision on the
-// same request with, when it accepts, what echo's binder decodes from the
-// body (what the handler got before the fast path).
-func runDecisions(t testing.TB, spec *specValidator, rc runCase) (fast bool, fastRun *oapi.RunRequest, specErr error, echoRun *oapi.RunRequest) {
+// runDecision is the run fast path's decision on a request and, when it
+// accepts, the run it decoded; and the spec validator's decision on the same
+// request with, when it accepts, what echo's binder decodes from the body
+// (what the handler got before the fast path).
+type runDecision struct {
+	fast    bool
+	fastRun *oapi.RunRequest
+	specErr error
+	echoRun *oapi.RunRequest // nil when the binder refused what the spec accepted
+}
+
+func runDecisions(t testing.TB, spec *specValidator, rc runCase) runDecision {
 	t.Helper()
+	var d runDecision
 	e := echo.New()
 	c := e.NewContext(rc.request(), httptest.NewRecorder())
 	fast, err := runFastPath(c)
 	if err != nil {
 		t.Fatalf("runFastPath: %v", err)
 	}
-	if fast {
-		fastRun = c.Get(fastRunKey).(*oapi.RunRequest)
+	if d.fast = fast; fast {
+		d.fastRun = c.Get(fastRunKey).(*oapi.RunRequest)
 	}
 	// The body the fast path put back is the body it read.
 	if back, err := io.ReadAll(c.Request().Body); err != nil || string(back) != rc.body {
 		t.Fatalf("the fast path put back %q (%v), not the body", back, err)
 	}
 	c = e.NewContext(rc.request(), httptest.NewRecorder())
-	if specErr = spec.validate(c); specErr == nil {
-		echoRun = &oapi.RunRequest{}
-		if err := (&echo.DefaultBinder{}).BindBody(c, echoRun); err != nil {
-			echoRun = nil // the handler's decoding refused what the spec accepted
+	if d.specErr = spec.validate(c); d.specErr == nil {
+		var v oapi.RunRequest
+		if (&echo.DefaultBinder{}).BindBody(c, &v) == nil {
+			d.echoRun = &v
 		}
 	}
-	return fast, fastRun, specErr, echoRun
+	return d
 }
 
 // CheckRunFastPath fails t if the run fast path accepts the body (with
@@ -209,22 +217,22 @@ var (
 
 func checkRunCase(t testing.TB, spec *specValidator, rc runCase) bool {
 	t.Helper()
-	fast, fastRun, specErr, echoRun := runDecisions(t, spec, rc)
-	if !fast {
+	d := runDecisions(t, spec, rc)
+	if !d.fast {
 		return false
 	}
-	if specErr != nil {
-		t.Fatalf("the fast path accepts %+v, which the spec refuses: %v", rc, specErr)
+	if d.specErr != nil {
+		t.Fatalf("the fast path accepts %+v, which the spec refuses: %v", rc, d.specErr)
 	}
-	if echoRun == nil {
+	if d.echoRun == nil {
 		t.Fatalf("the fast path accepts %+v, which echo's binder cannot decode", rc)
 	}
-	if !reflect.DeepEqual(fastRun, echoRun) {
-		t.Fatalf("body %q: the fast path decoded %+v, echo's binder %+v", rc.body, *fastRun, *echoRun)
+	if !reflect.DeepEqual(d.fastRun, d.echoRun) {
+		t.Fatalf("body %q: the fast path decoded %+v, echo's binder %+v", rc.body, *d.fastRun, *d.echoRun)
 	}
 	var strict oapi.RunRequest
-	if err := json.Unmarshal([]byte(rc.body), &strict); err != nil || !reflect.DeepEqual(*fastRun, strict) {
-		t.Fatalf("body %q: the fast path decoded %+v, json.Unmarshal %+v (%v)", rc.body, *fastRun, strict, err)
+	if err := json.Unmarshal([]byte(rc.body), &strict); err != nil || !reflect.DeepEqual(*d.fastRun, strict) {
+		t.Fatalf("body %q: the fast path decoded %+v, json.Unmarshal %+v (%v)", rc.body, *d.fastRun, strict, err)
 	}
 	return true
 }
@@ -401,12 +409,12 @@ func TestRunFastPathNeverAcceptsWhatTheSpecRefuses(t *testing.T) {
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			fast, _, specErr, _ := runDecisions(t, spec, tc.rc)
-			if fast != tc.fast {
-				t.Errorf("fast path %t, want %t", fast, tc.fast)
+			d := runDecisions(t, spec, tc.rc)
+			if d.fast != tc.fast {
+				t.Errorf("fast path %t, want %t", d.fast, tc.fast)
 			}
-			if (specErr == nil) != tc.spec {
-				t.Errorf("spec validator accepts: %t, want %t (%v)", specErr == nil, tc.spec, specErr)
+			if (d.specErr == nil) != tc.spec {
+				t.Errorf("spec validator accepts: %t, want %t (%v)", d.specErr == nil, tc.spec, d.specErr)
 			}
 			checkRunCase(t, spec, tc.rc)
 		})
