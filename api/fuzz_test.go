@@ -5,6 +5,8 @@ package api_test
 // the handler and the store) on a real PostgreSQL database. The rules: never
 // a 5xx, every 4xx is application/problem+json with a detail, and a 2xx is
 // well-formed JSON. Seed corpora live in testdata/fuzz/<target>/.
+// FuzzRunFastPathSound, which compares two validators without the stack,
+// lives here to share the runs the stack's targets start from.
 
 import (
 	"bytes"
@@ -13,6 +15,9 @@ import (
 	"log/slog"
 	"net/http"
 	"net/http/httptest"
+	"os"
+	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -115,25 +120,92 @@ var fuzzRunSeed = []byte(`{"method":"nitrate-ic","instrument":"ic-02","acquired_
 {"analyte":"nitrate","level":"L6","concentration":20,"responses":[30.01,30.04]}],
 "samples":[{"id":"W-0043","analyte":"nitrate","responses":[4.2],"dilution":2}]}`)
 
+// createRunSeeds are the hand-written JSON runs FuzzCreateRunJSON and
+// FuzzRunFastPathSound start from.
+var createRunSeeds = []string{
+	string(fuzzRunSeed),
+	`{}`, `[]`, `null`, `{"method":`,
+	`{"method":"nitrate-ic","instrument":"ic-02","acquired_at":"2025-03-01T08:00:00Z","standards":[{"analyte":"nitrate","level":"L1","concentration":"NaN","responses":[1]}]}`,
+	`{"method":"nitrate-ic","instrument":"ic-02","acquired_at":"2025-03-01T08:00:00Z","standards":[{"analyte":"nitrate","level":"L1","concentration":1e308,"responses":[-1e308]}]}`,
+	`{"method":"nitrate-ic","instrument":"ic-02","acquired_at":"2025-03-01T08:00:00Z","standards":[{"analyte":"nitrate","level":"L1","concentration":1,"responses":[1]},{"analyte":"nitrate","level":"L1","concentration":2,"responses":[2]}]}`,
+	`{"method":"nitrate-ic","instrument":"ic-02","acquired_at":"2025-03-01T08:00:00Z","standards":[{"analyte":"nitrate","level":"L1","concentration":1,"responses":[5,5]},{"analyte":"nitrate","level":"L2","concentration":2,"responses":[5,5]}]}`,
+	`{"method":"x'; DROP TABLE runs; --","instrument":"ic\u0000","acquired_at":"2025-03-01T08:00:00Z","standards":[]}`,
+	`{"method":"nitrate-ic","instrument":"ic-02","acquired_at":"not a time","standards":[{"analyte":"nitrate","level":"L1","concentration":-1,"responses":[]}],"extra":true}`,
+}
+
 // FuzzCreateRunJSON posts arbitrary JSON bodies to POST /v1/runs.
 func FuzzCreateRunJSON(f *testing.F) {
 	fs := newFuzzServer(f)
-	for _, s := range []string{
-		string(fuzzRunSeed),
-		`{}`, `[]`, `null`, `{"method":`,
-		`{"method":"nitrate-ic","instrument":"ic-02","acquired_at":"2025-03-01T08:00:00Z","standards":[{"analyte":"nitrate","level":"L1","concentration":"NaN","responses":[1]}]}`,
-		`{"method":"nitrate-ic","instrument":"ic-02","acquired_at":"2025-03-01T08:00:00Z","standards":[{"analyte":"nitrate","level":"L1","concentration":1e308,"responses":[-1e308]}]}`,
-		`{"method":"nitrate-ic","instrument":"ic-02","acquired_at":"2025-03-01T08:00:00Z","standards":[{"analyte":"nitrate","level":"L1","concentration":1,"responses":[1]},{"analyte":"nitrate","level":"L1","concentration":2,"responses":[2]}]}`,
-		`{"method":"nitrate-ic","instrument":"ic-02","acquired_at":"2025-03-01T08:00:00Z","standards":[{"analyte":"nitrate","level":"L1","concentration":1,"responses":[5,5]},{"analyte":"nitrate","level":"L2","concentration":2,"responses":[5,5]}]}`,
-		`{"method":"x'; DROP TABLE runs; --","instrument":"ic\u0000","acquired_at":"2025-03-01T08:00:00Z","standards":[]}`,
-		`{"method":"nitrate-ic","instrument":"ic-02","acquired_at":"not a time","standards":[{"analyte":"nitrate","level":"L1","concentration":-1,"responses":[]}],"extra":true}`,
-	} {
+	for _, s := range createRunSeeds {
 		f.Add([]byte(s))
 	}
 	f.Fuzz(func(t *testing.T, in []byte) {
 		rec := fs.post(in, "/v1/runs", fs.writer)
 		checkAnswer(t, in, rec, http.StatusCreated)
 	})
+}
+
+// FuzzRunFastPathSound: whatever the body and Idempotency-Key (none when
+// empty), a JSON POST /v1/runs that the run fast path accepts is one the
+// spec validator accepts, and the fast path decoded it as echo's binder and
+// encoding/json do (api.CheckRunFastPath). Unlike the other targets here it
+// calls the two validators directly, not the handler stack. Seeds: the
+// runs of the other tests, and FuzzCreateRunJSON's seeds and corpus.
+func FuzzRunFastPathSound(f *testing.F) {
+	for _, body := range runSeedBodies(f) {
+		f.Add(body, "")
+		f.Add(body, "b7f0c6e2-6a55-4f7e-9a3c-3c2b1f1d9e01")
+	}
+	f.Fuzz(func(t *testing.T, body []byte, idempotencyKey string) {
+		api.CheckRunFastPath(t, body, idempotencyKey)
+	})
+}
+
+// TestRunFastPathTakesTestRuns: the runs the tests and the benchmark post
+// take the run fast path, or it would be dead code.
+func TestRunFastPathTakesTestRuns(t *testing.T) {
+	t.Parallel()
+	bodies := map[string][]byte{
+		"fuzz seed run": fuzzRunSeed,
+		"one analyte":   mustJSON(t, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 1))),
+		"two analytes":  mustJSON(t, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 2), standards("phosphate", 3))),
+	}
+	for name, body := range bodies {
+		if !api.CheckRunFastPath(t, body, "retry-7") {
+			t.Errorf("%s: the fast path refuses %s", name, body)
+		}
+	}
+}
+
+// runSeedBodies are the JSON runs the other tests post, FuzzCreateRunJSON's
+// hand-written seeds and the inputs of its corpus in testdata/fuzz.
+func runSeedBodies(f *testing.F) [][]byte {
+	bodies := [][]byte{
+		mustJSON(f, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 1))),
+		mustJSON(f, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 2), standards("phosphate", 3))),
+	}
+	for _, s := range createRunSeeds {
+		bodies = append(bodies, []byte(s))
+	}
+	files, err := filepath.Glob("testdata/fuzz/FuzzCreateRunJSON/*")
+	if err != nil || len(files) == 0 {
+		f.Fatalf("FuzzCreateRunJSON's corpus: %v files, %v", len(files), err)
+	}
+	for _, name := range files {
+		raw, err := os.ReadFile(name)
+		if err != nil {
+			f.Fatal(err)
+		}
+		// A corpus file is "go test fuzz v1" and one line []byte("...").
+		header, value, _ := strings.Cut(strings.TrimSpace(string(raw)), "\n")
+		quoted, ok := strings.CutPrefix(value, "[]byte(")
+		body, err := strconv.Unquote(strings.TrimSuffix(quoted, ")"))
+		if header != "go test fuzz v1" || !ok || err != nil {
+			f.Fatalf("%s is not a corpus file of one []byte: %v", name, err)
+		}
+		bodies = append(bodies, []byte(body))
+	}
+	return bodies
 }
 
 // FuzzPredictRequest posts arbitrary JSON bodies to

@@ -194,11 +194,7 @@ func (p *fastParser) request() (*oapi.PredictionRequest, bool) {
 		}
 		return false
 	})
-	if !ok || !haveSamples {
-		return nil, false
-	}
-	p.ws()
-	if p.i != len(p.raw) {
+	if !ok || !haveSamples || !p.end() {
 		return nil, false
 	}
 	return out, true
@@ -221,16 +217,13 @@ func (p *fastParser) sample() (oapi.PredictionSample, bool) {
 			sm.ID = string(s)
 			return ok
 		case memberResponses:
-			if haveR || p.peek() != '[' {
+			if haveR {
 				return false
 			}
 			haveR = true
-			sm.Responses = make([]float64, 0, 4)
-			return p.elements(func() bool {
-				v, ok := p.number()
-				sm.Responses = append(sm.Responses, v)
-				return ok
-			})
+			var ok bool
+			sm.Responses, ok = p.responses()
+			return ok
 		case memberDilution:
 			if haveDilut {
 				return false
@@ -243,4 +236,19 @@ func (p *fastParser) sample() (oapi.PredictionSample, bool) {
 		return false
 	})
 	return sm, ok && haveID && haveR
+}
+
+// responses reads an array of numbers (Responses, in either request). An
+// empty array gives up here: the spec's Responses refuses it (minItems 1).
+func (p *fastParser) responses() ([]float64, bool) {
+	if p.peek() != '[' {
+		return nil, false
+	}
+	out := make([]float64, 0, 4)
+	ok := p.elements(func() bool {
+		v, ok := p.number()
+		out = append(out, v)
+		return ok
+	})
+	return out, ok && len(out) > 0
 }

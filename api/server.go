@@ -69,7 +69,7 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 	// X-Forwarded-For or X-Real-IP: those headers can be spoofed (see
 	// GO-2026-6872 and GO-2026-6875, reported against Echo's defaults).
 	e.IPExtractor = echo.ExtractIPDirect()
-	e.Binder = &predictionBinder{}
+	e.Binder = &fastPathBinder{}
 	doc, err := oapi.GetSwagger()
 	if err != nil {
 		return nil, fmt.Errorf("api: load the embedded spec: %w", err)

@@ -25,6 +25,50 @@ func init() {
 // a handler sees it: parameters, content type and body. Its failures become
 // problem details naming each offending field.
 func requestValidator(doc *openapi3.T) (echo.MiddlewareFunc, error) {
+	spec, err := newSpecValidator(doc)
+	if err != nil {
+		return nil, err
+	}
+	return func(next echo.HandlerFunc) echo.HandlerFunc {
+		return func(c echo.Context) error {
+			if isUIPath(c.Request().URL.Path) {
+				return next(c) // the QA pages check their own form input
+			}
+			if c.Request().Method == http.MethodPost {
+				var fast func(echo.Context) (bool, error)
+				switch c.Path() {
+				case predictionRoute:
+					fast = predictionFastPath
+				case runsRoute:
+					fast = runFastPath
+				}
+				if fast != nil {
+					ok, err := fast(c)
+					if err != nil {
+						return err
+					}
+					if ok {
+						return next(c)
+					}
+				}
+			}
+			if err := spec.validate(c); err != nil {
+				return err
+			}
+			return next(c)
+		}
+	}, nil
+}
+
+// specValidator is kin-openapi's validation of a request against the spec,
+// the answer for every request that no fast path accepted. The fast paths'
+// tests ask it for its decision on the bodies they accept.
+type specValidator struct {
+	router routers.Router
+	opts   *oapimw.Options
+}
+
+func newSpecValidator(doc *openapi3.T) (*specValidator, error) {
 	router, err := gorillamux.NewRouter(doc)
 	if err != nil {
 		return nil, fmt.Errorf("api: route the spec: %w", err)
@@ -40,36 +84,26 @@ func requestValidator(doc *openapi3.T) (echo.MiddlewareFunc, error) {
 			return &echo.HTTPError{Code: http.StatusBadRequest, Internal: me}
 		},
 	}
-	return func(next echo.HandlerFunc) echo.HandlerFunc {
-		return func(c echo.Context) error {
-			if isUIPath(c.Request().URL.Path) {
-				return next(c) // the QA pages check their own form input
-			}
-			if c.Path() == predictionRoute && c.Request().Method == http.MethodPost {
-				ok, err := predictionFastPath(c)
-				if err != nil {
-					return err
-				}
-				if ok {
-					return next(c)
-				}
-			}
-			route, _, ferr := router.FindRoute(c.Request())
-			if ferr != nil {
-				if errors.Is(ferr, routers.ErrMethodNotAllowed) {
-					return newProblem(http.StatusMethodNotAllowed, "this path does not accept "+c.Request().Method)
-				}
-				return newProblem(http.StatusNotFound, "no such route: "+c.Request().URL.Path)
-			}
-			if p := checkContentType(c.Request(), route.Operation); p != nil {
-				return p
-			}
-			if he := oapimw.ValidateRequestFromContext(c, router, opts); he != nil {
-				return validationProblem(he)
-			}
-			return next(c)
+	return &specValidator{router: router, opts: opts}, nil
+}
+
+// validate returns nil when the request satisfies the spec, or the problem
+// (404, 405, 415 or 400) that answers it.
+func (v *specValidator) validate(c echo.Context) error {
+	route, _, ferr := v.router.FindRoute(c.Request())
+	if ferr != nil {
+		if errors.Is(ferr, routers.ErrMethodNotAllowed) {
+			return newProblem(http.StatusMethodNotAllowed, "this path does not accept "+c.Request().Method)
 		}
-	}, nil
+		return newProblem(http.StatusNotFound, "no such route: "+c.Request().URL.Path)
+	}
+	if p := checkContentType(c.Request(), route.Operation); p != nil {
+		return p
+	}
+	if he := oapimw.ValidateRequestFromContext(c, v.router, v.opts); he != nil {
+		return validationProblem(he)
+	}
+	return nil
 }
 
 // checkContentType answers 415 for a body whose media type the operation

@@ -7,6 +7,7 @@ import (
 	"io"
 	"mime"
 	"net/http"
+	"strings"
 
 	"github.com/labstack/echo/v4"
 
@@ -68,17 +69,23 @@ func predictionFastPath(c echo.Context) (bool, error) {
 // fast path accepted and decoded.
 const fastPredictionKey = "curvekeeper.fastPrediction"
 
-// predictionBinder is the server's echo binder. The generated strict handler
+// fastPathBinder is the server's echo binder. The generated strict handler
 // binds only the body with a custom binder as with echo's default one
-// (DefaultBinder.BindBody); for a prediction request that the fast path
-// accepted, it hands over the value the fast path decoded from the same
-// bytes instead of decoding them a second time.
-type predictionBinder struct{ echo.DefaultBinder }
+// (DefaultBinder.BindBody); for a prediction request or a JSON run that a
+// fast path accepted, it hands over the value the fast path decoded from the
+// same bytes instead of decoding them a second time.
+type fastPathBinder struct{ echo.DefaultBinder }
 
 // Bind binds the request body into i.
-func (b *predictionBinder) Bind(i any, c echo.Context) error {
-	if dst, ok := i.(*oapi.PredictionRequest); ok {
+func (b *fastPathBinder) Bind(i any, c echo.Context) error {
+	switch dst := i.(type) {
+	case *oapi.PredictionRequest:
 		if v, ok := c.Get(fastPredictionKey).(*oapi.PredictionRequest); ok && v != nil {
+			*dst = *v
+			return nil
+		}
+	case *oapi.RunRequest:
+		if v, ok := c.Get(fastRunKey).(*oapi.RunRequest); ok && v != nil {
 			*dst = *v
 			return nil
 		}
@@ -95,7 +102,7 @@ func predictionBodyOK(raw []byte) bool {
 
 // decodeFastPrediction is predictionBodyOK returning, when it accepts, the
 // request it decoded, so that the handler need not decode the body again
-// (see predictionBinder). It parses the body itself in one pass (see
+// (see fastPathBinder). It parses the body itself in one pass (see
 // fastParser) and then checks the schema's bounds.
 func decodeFastPrediction(raw []byte) (*oapi.PredictionRequest, bool) {
 	p := fastParser{raw: raw}
@@ -116,23 +123,29 @@ func withinBounds(req *oapi.PredictionRequest) bool {
 		return false
 	}
 	for _, sm := range req.Samples {
-		if !isIdentifier(sm.ID) {
-			return false
-		}
-		if len(sm.Responses) < 1 || len(sm.Responses) > fastResponsesMax {
-			return false
-		}
-		for _, r := range sm.Responses {
-			if r < -fastResponseAbsMax || r > fastResponseAbsMax {
-				return false
-			}
-		}
-		if d := sm.Dilution; d != nil && (*d <= 0 || *d > fastDilutionMax) {
+		if !isIdentifier(sm.ID) || !responsesOK(sm.Responses) || !dilutionOK(sm.Dilution) {
 			return false
 		}
 	}
 	return true
 }
+
+// responsesOK checks replicate readings against the spec's Responses and
+// Response.
+func responsesOK(rs []float64) bool {
+	if len(rs) < 1 || len(rs) > fastResponsesMax {
+		return false
+	}
+	for _, r := range rs {
+		if r < -fastResponseAbsMax || r > fastResponseAbsMax {
+			return false
+		}
+	}
+	return true
+}
+
+// dilutionOK checks an optional dilution against the spec's Dilution.
+func dilutionOK(d *float64) bool { return d == nil || (*d > 0 && *d <= fastDilutionMax) }
 
 // The member names of PredictionRequest and PredictionSample, the only
 // ones fastParser knows; they differ from each other ignoring case.
@@ -147,14 +160,19 @@ const (
 var fastMemberNames = []string{memberConfidence, memberSamples, memberID, memberResponses, memberDilution}
 
 // isIdentifier matches the spec's Identifier: ^[A-Za-z0-9][A-Za-z0-9._:-]{0,63}$.
-func isIdentifier(s string) bool {
-	if len(s) < 1 || len(s) > fastIdentifierMax {
+func isIdentifier(s string) bool { return isName(s, fastIdentifierMax, true, "._:-") }
+
+// isName reports whether s is 1 to max bytes, each an ASCII letter or digit
+// or one of extra, the first a letter or digit when alnumFirst: the shape of
+// every name pattern in the spec.
+func isName(s string, max int, alnumFirst bool, extra string) bool {
+	if len(s) < 1 || len(s) > max {
 		return false
 	}
 	for i := 0; i < len(s); i++ {
 		ch := s[i]
 		alnum := ch >= 'a' && ch <= 'z' || ch >= 'A' && ch <= 'Z' || ch >= '0' && ch <= '9'
-		if !alnum && (i == 0 || (ch != '.' && ch != '_' && ch != ':' && ch != '-')) {
+		if !alnum && (alnumFirst && i == 0 || strings.IndexByte(extra, ch) < 0) {
 			return false
 		}
 	}

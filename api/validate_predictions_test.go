@@ -27,6 +27,22 @@ func specSchema(t *testing.T, name string) *openapi3.Schema {
 	return ref.Value
 }
 
+// boundOf is a schema's optional bound, -1 when absent.
+func boundOf(p *float64) float64 {
+	if p == nil {
+		return -1
+	}
+	return *p
+}
+
+// countOf is a schema's optional length or count, -1 when absent.
+func countOf(p *uint64) int {
+	if p == nil {
+		return -1
+	}
+	return int(*p)
+}
+
 func propertyNames(s *openapi3.Schema) []string {
 	var names []string
 	for k := range s.Properties {
@@ -44,18 +60,7 @@ func TestFastPathBoundsMatchSpec(t *testing.T) {
 	ident, resps, resp := specSchema(t, "Identifier"), specSchema(t, "Responses"), specSchema(t, "Response")
 	dil, conf := specSchema(t, "Dilution"), specSchema(t, "Confidence")
 	samples := req.Properties["samples"].Value
-	f := func(p *float64) float64 {
-		if p == nil {
-			return -1
-		}
-		return *p
-	}
-	u := func(p *uint64) int {
-		if p == nil {
-			return -1
-		}
-		return int(*p)
-	}
+	f, u := boundOf, countOf
 	checks := []struct {
 		name      string
 		got, want any
@@ -192,7 +197,7 @@ func TestFastPathNeverAcceptsWhatTheSpecRefuses(t *testing.T) {
 				return
 			}
 			// The handler receives the fast path's value instead of echo's
-			// decode of the same bytes (predictionBinder): they must agree.
+			// decode of the same bytes (fastPathBinder): they must agree.
 			fast, _ := decodeFastPrediction([]byte(tc.body))
 			var want oapi.PredictionRequest
 			if err := json.Unmarshal([]byte(tc.body), &want); err != nil {
