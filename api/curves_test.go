@@ -5,12 +5,14 @@ import (
 	"encoding/json"
 	"encoding/xml"
 	"errors"
+	"fmt"
 	"image/png"
 	"io"
 	"math"
 	"net/http"
 	"net/url"
 	"slices"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -316,6 +318,18 @@ func TestPredictions(t *testing.T) {
 	wantX := []float64{3 + 0.001/trueSlope, 6.5, 10, 15, belowLOQ}
 	r := e.postJSON(t, lims, "/v1/curves/"+id+"/predictions", map[string]any{"samples": samples})
 	got := decode[oapi.PredictionResponse](t, r, http.StatusOK)
+	// A longer answer (over net/http's 2 kB buffer) is sent with its
+	// length in one piece, not chunked.
+	var more []map[string]any
+	for k := range 4 {
+		for _, smp := range samples {
+			more = append(more, map[string]any{"id": fmt.Sprintf("%s-%d", smp["id"], k), "responses": smp["responses"]})
+		}
+	}
+	long := e.postJSON(t, lims, "/v1/curves/"+id+"/predictions", map[string]any{"samples": more})
+	if cl := long.header.Get("Content-Length"); long.status != http.StatusOK || len(long.body) <= 2048 || cl != strconv.Itoa(len(long.body)) {
+		t.Errorf("%d: Content-Length %q for a body of %d bytes", long.status, cl, len(long.body))
+	}
 	if got.CurveID.String() != id || got.Analyte != "nitrate" || got.Unit != "mg/L" || got.Confidence != 0.95 || len(got.Cautions) == 0 {
 		t.Errorf("header %+v", got)
 	}

@@ -299,6 +299,11 @@ func (r *predictionJSONResponse) write(w http.ResponseWriter) error {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/json")
+	// A body over net/http's 2 kB response buffer is otherwise sent
+	// chunked: the start of it at the first Write and the end chunk when
+	// the handler returns, two writes to the socket (and chunked framing
+	// for the client to parse) where one does.
+	w.Header().Set("Content-Length", strconv.Itoa(len(b)))
 	w.WriteHeader(200)
 	_, err = w.Write(b)
 	if cap(b) <= maxPooledPredictionBuf {
