@@ -65,17 +65,6 @@ func writeAudit(ctx context.Context, tx pgx.Tx, actor, action, entityType, entit
 	return nil
 }
 
-// queueAudit adds one audit row to b, a batch sent in the transaction of the
-// write it records.
-func queueAudit(b *pgx.Batch, actor, action, entityType, entityID string, detail any) error {
-	d, err := auditDetail(detail)
-	if err != nil {
-		return err
-	}
-	b.Queue(sqlInsertAudit, actor, action, entityType, entityID, d)
-	return nil
-}
-
 // ListAudit returns the audit trail of a curve, oldest first: the events of
 // the curve itself and of the run it was fitted from.
 func (db *DB) ListAudit(ctx context.Context, curveID string) ([]AuditEvent, error) {
