@@ -255,28 +255,15 @@ func prepareCurve(c CurveInput) (preparedCurve, error) {
 	return p, nil
 }
 
-const (
-	sqlInsertRun = `
-INSERT INTO runs (id, method, method_revision, instrument, acquired_at, operator, received_by, source_format, request_hash, payload)
-VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10)`
-	sqlInsertReadings = `
-INSERT INTO readings (run_id, analyte, level, replicate, standard, concentration, response)
-SELECT $1, * FROM unnest($2::text[], $3::text[], $4::int[], $5::int[], $6::float8[], $7::float8[])`
-	sqlInsertSample = `
+const sqlInsertSample = `
 INSERT INTO run_samples (run_id, position, sample_id, analyte, responses, dilution, acquired_at)
 VALUES ($1, $2, $3, $4, $5, $6, $7)`
-	sqlInsertCurve = `
-INSERT INTO curves (id, run_id, method, method_revision, instrument, analyte, unit, model, weighting, verdict,
-                    engine_version, report, acquired_at, created_by, slope, intercept, residual_sd, r_squared, lod,
-                    failed_checks)
-VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19, $20)`
-)
 
 // CreateRun stores a run, its readings and samples, its fitted curves (each
 // pending review) and their audit rows in one transaction, and returns the
 // ids it assigned. Runs that arrive together are written together, in one
 // transaction per group (run_writes.go); a run whose group fails is written
-// alone, by createRunAlone, which is what a run's write means.
+// alone, by createRunAlone, with the same statements.
 //
 // With an IdempotencyKey the key is claimed first, in the same transaction:
 // a concurrent request with the same key (and token) waits for this one to
@@ -333,11 +320,12 @@ func prepareRun(ctx context.Context, in RunInput, curves []CurveInput) (*runWrit
 	return &runWrite{ctx: ctx, in: &in, runID: runID, payload: payload, body: body, curves: prepared}, created, nil
 }
 
-// createRunAlone is CreateRun's write in a transaction of its own: the
-// reference for what a run's write means, and the path for every run whose
-// group could not be written (runWrites).
+// createRunAlone is CreateRun's write in a transaction of its own, for
+// every run whose group could not be written (runWrites): it claims the
+// idempotency key with ON CONFLICT, so that a key used before is answered
+// with a replay, and tells the run's own errors apart.
 func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *RunCreated) (*RunCreated, error) {
-	in, runID, prepared := w.in, w.runID, w.curves
+	in, runID := w.in, w.runID
 	var replay *RunCreated
 	err := db.inTx(ctx, func(tx pgx.Tx) error {
 		replay = nil
@@ -357,7 +345,9 @@ func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *RunCreat
 			}
 		}
 		// A batch is built per attempt: inTx may run this function again.
-		batch, err := runBatch(in, runID, w.payload, prepared)
+		// It also quantifies every sample against its analyte's curve, in
+		// the transaction that stores it.
+		batch, err := runRows([]*runWrite{w}, false)
 		if err != nil {
 			return err
 		}
@@ -378,13 +368,7 @@ func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *RunCreat
 			}
 			return classify("insert run "+runID, err)
 		}
-		// Every sample is quantified against its analyte's curve now, in the
-		// transaction that stores it.
-		events := &eventBuffer{}
-		if err := insertResults(ctx, tx, runID, runResults(in, prepared), in.Actor, CauseRunCreate, events); err != nil {
-			return err
-		}
-		return flushEvents(ctx, tx, events)
+		return nil
 	})
 	if errors.Is(err, errStoredByGroup) {
 		return created, nil
@@ -396,54 +380,6 @@ func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *RunCreat
 		return replay, nil
 	}
 	return created, nil
-}
-
-// runBatch queues every row of a new run: the run, its readings (one
-// statement over arrays), its samples, its curves and the audit rows.
-func runBatch(in *RunInput, runID string, payload []byte, curves []preparedCurve) (*pgx.Batch, error) {
-	var operator *string
-	if in.Operator != "" {
-		operator = &in.Operator
-	}
-	b := &pgx.Batch{}
-	b.Queue(sqlInsertRun, runID, in.Method, in.MethodRevision, in.Instrument, in.AcquiredAt, operator,
-		in.Actor, in.SourceFormat, in.RequestHash, payload)
-
-	var (
-		analytes, levels     []string
-		replicates, standard []int32
-		concs, responses     []float64
-	)
-	for i, s := range in.Standards {
-		for k, r := range s.Responses {
-			analytes = append(analytes, s.Analyte)
-			levels = append(levels, s.Level)
-			replicates = append(replicates, int32(k+1))
-			standard = append(standard, int32(i))
-			concs = append(concs, s.Concentration)
-			responses = append(responses, r)
-		}
-	}
-	b.Queue(sqlInsertReadings, runID, analytes, levels, replicates, standard, concs, responses)
-	for i, s := range in.Samples {
-		b.Queue(sqlInsertSample, runID, i, s.ID, s.Analyte, s.Responses, s.Dilution, s.AcquiredAt)
-	}
-
-	for _, c := range curves {
-		unit := c.in.Unit
-		b.Queue(sqlInsertCurve, c.id, runID, in.Method, in.MethodRevision, in.Instrument, c.in.Analyte, unit,
-			c.model, c.weighting, c.verdict, c.engine, c.report, in.AcquiredAt, in.Actor,
-			c.scalars.slope, c.scalars.intercept, c.scalars.residualSD, c.scalars.rSquared, c.scalars.lod,
-			c.failed)
-	}
-	audits, err := runAudits(in, runID, curves)
-	if err != nil {
-		return nil, err
-	}
-	for _, a := range audits {
-		b.Queue(sqlInsertAudit, a.actor, a.action, a.entityType, a.entityID, a.detail)
-	}
-	return b, nil
 }
 
 // auditRow is one audit row of a write, its detail marshalled.
