@@ -55,3 +55,25 @@ func CreateRunAlone(ctx context.Context, db *DB, in RunInput, curves []CurveInpu
 	}
 	return db.createRunAlone(ctx, w, created)
 }
+
+// PlanCase is a statement the service runs on every request, with
+// parameters of the shape it sends.
+type PlanCase struct {
+	Name string
+	SQL  string
+	Args []any
+}
+
+// HotStatements are the reads of every ingest and prediction request.
+func HotStatements() []PlanCase {
+	hash := make([]byte, 32)
+	curve := "0190a1b2-c3d4-7e5f-8a9b-0c1d2e3f4a5b"
+	return []PlanCase{
+		{"token lookup, no curve", sqlTokenLookupOne, []any{hash}},
+		{"token lookup with a curve", sqlTokenLookupOneCurve, []any{hash, curve}},
+		{"coalesced token lookups", sqlTokenLookups, []any{[][]byte{hash, hash[:31]}, []*string{nil, &curve}}},
+		{"idempotency key", sqlSelectKey, []any{curve, "key-1"}},
+		{"latest method revision", sqlSelectLatestMethod, []any{"nitrate-ic"}},
+		{"recent approved slopes", sqlRecentApprovedSlopes, []any{"ic-1", "nitrate", time.Now(), 20}},
+	}
+}

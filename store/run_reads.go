@@ -37,6 +37,9 @@ type RunReads struct {
 	Slopes map[string][]float64
 }
 
+// sqlSelectLatestMethod reads a method's newest revision.
+const sqlSelectLatestMethod = sqlSelectMethod + ` WHERE name = $1 ORDER BY revision DESC LIMIT 1`
+
 // ReadForRun makes the reads of LookupIdempotency, GetMethod and
 // RecentApprovedSlopes (one per analyte) in one pgx batch, one round trip,
 // with their decisions and errors in that order: a key used with another
@@ -55,7 +58,7 @@ func (db *DB) ReadForRun(ctx context.Context, q RunReadsQuery) (*RunReads, error
 		}
 		b.Queue(sqlSelectKey, tokenID, q.Key)
 	}
-	b.Queue(sqlSelectMethod+` WHERE name = $1 ORDER BY revision DESC LIMIT 1`, q.Method)
+	b.Queue(sqlSelectLatestMethod, q.Method)
 	analytes := slices.Clone(q.Analytes)
 	slices.Sort(analytes)
 	analytes = slices.Compact(analytes)
