@@ -74,6 +74,8 @@ func TestLineFormat(t *testing.T) {
 			`scenario=predict_p99 service=12.50 baseline=3.000 ratio=4.167 target=service<=10 unit=ms met=no note="a b"`},
 		{"no baseline", line{Scenario: "x", Service: 1, Unit: "ms", Target: target{"ratio", "<=", 1.5}},
 			"scenario=x service=1.000 baseline=0 ratio=NaN target=ratio<=1.5 unit=ms met=no"},
+		{"no target", line{Scenario: "ingest_same_rows", Service: 1200, Baseline: 1500, Unit: "runs/s"},
+			"scenario=ingest_same_rows service=1200 baseline=1500 ratio=0.8000 target=none unit=runs/s met=n/a"},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
@@ -131,5 +133,73 @@ func TestBulkLoadServesHistory(t *testing.T) {
 	}
 	if _, err := json.Marshal(runRequest(3)); err != nil {
 		t.Fatal(err)
+	}
+}
+
+// TestSameRowsBaselineWritesTheRecord: one run of the same-rows baseline
+// leaves the rows the service keeps for such a run, in the copies of its
+// tables, with a report that is the engine's fit of the run.
+func TestSameRowsBaselineWritesTheRecord(t *testing.T) {
+	url := dbtest.NewURL(t)
+	ctx := context.Background()
+	db, err := store.Open(ctx, url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	_, _, err = db.CreateMethod(ctx, store.MethodInput{Name: benchMethod, Model: calib.Linear, Weighting: calib.WeightInvX2,
+		Confidence: 0.95, Analytes: []store.Analyte{{Name: benchAnalyte, Unit: "mg/L"}}, Acceptance: calib.DefaultPolicy()}, "test")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, _, err := db.CreateToken(ctx, "bench-instrument", []string{"runs:write"}, "test"); err != nil {
+		t.Fatal(err)
+	}
+	h := &harness{dbURL: url}
+	pool, err := h.baselineIngestPool(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer pool.Close()
+	tokenID, err := h.sameRowsTables(ctx, pool)
+	if err != nil {
+		t.Fatal(err)
+	}
+	body, err := json.Marshal(runRequest(5))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := insertSameRows(ctx, pool, tokenID, body, "rows-0-5"); err != nil {
+		t.Fatal(err)
+	}
+	for table, want := range map[string]int{"idempotency_keys": 1, "runs": 1, "readings": 16, "curves": 1, "audit": 2} {
+		var n int
+		if err := pool.QueryRow(ctx, "SELECT count(*) FROM bench_baseline."+table).Scan(&n); err != nil {
+			t.Fatal(err)
+		}
+		if n != want {
+			t.Errorf("bench_baseline.%s holds %d rows, want %d", table, n, want)
+		}
+	}
+	var stored []byte
+	if err := pool.QueryRow(ctx, "SELECT report::text FROM bench_baseline.curves").Scan(&stored); err != nil {
+		t.Fatal(err)
+	}
+	var pts []calib.Point
+	for _, s := range runRequest(5).Standards {
+		for _, y := range s.Responses {
+			pts = append(pts, calib.Point{Level: s.Level, X: s.Concentration, Y: y})
+		}
+	}
+	rep, err := calib.Fit(pts, benchFitOptions)
+	if err != nil {
+		t.Fatal(err)
+	}
+	want, err := json.Marshal(rep)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if string(stored) != string(want) {
+		t.Errorf("stored report differs from the engine's fit of the run (%d vs %d bytes)", len(stored), len(want))
 	}
 }

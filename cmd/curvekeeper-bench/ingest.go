@@ -71,9 +71,13 @@ func (h *harness) ingest(ctx context.Context) error {
 			return err
 		}
 	}
+	tokenID, err := h.sameRowsTables(ctx, pool)
+	if err != nil {
+		return err
+	}
 	cl := newClient(ingestConns)
 	url := h.svc.base + "/v1/runs"
-	var svc, base result
+	var svc, base, same result
 	if err := resetPeakRSS(h.svc.pid()); err != nil {
 		return err
 	}
@@ -91,8 +95,12 @@ func (h *harness) ingest(ctx context.Context) error {
 			}}
 		baseline := load{Workers: ingestConns, Max: h.cfg.IngestMax, Duration: h.cfg.PhaseTime, ServerPID: -1,
 			Do: func(ctx context.Context, seq int) error { return insertBaselineRun(ctx, pool, bodies[seq], seq) }}
+		sameRows := load{Workers: ingestConns, Max: h.cfg.IngestMax, Duration: h.cfg.PhaseTime, ServerPID: -1,
+			Do: func(ctx context.Context, seq int) error {
+				return insertSameRows(ctx, pool, tokenID, bodies[seq], fmt.Sprintf("rows-%d-%d", round, seq))
+			}}
 		h.progress("ingest round %d/%d", round+1, h.cfg.Rounds)
-		alternate(ctx, round, &svc, service, &base, baseline)
+		rotate(ctx, round, []load{service, baseline, sameRows}, []*result{&svc, &base, &same})
 	}
 	stop()
 	writes1, err := runWriteCounts(ctx, h.svc.base)
@@ -102,7 +110,7 @@ func (h *harness) ingest(ctx context.Context) error {
 	if h.rssIngest, err = peakRSS(h.svc.pid()); err != nil {
 		return err
 	}
-	if err := loadErrors("ingest", svc, base); err != nil {
+	if err := loadErrors("ingest", svc, base, same); err != nil {
 		return err
 	}
 	l := line{Scenario: "ingest", Service: svc.rate(), Baseline: base.rate(), Unit: "runs/s",
@@ -117,20 +125,27 @@ func (h *harness) ingest(ctx context.Context) error {
 	l.Extra = append(l.Extra, kv("writes_alone", writes1.alone-writes0.alone))
 	l.Extra = append(append(l.Extra, cpuPerRequest("", svc)...), cpuPerRequest("baseline_", base)...)
 	fmt.Fprintln(h.out, l)
+	rows := line{Scenario: "ingest_same_rows", Service: svc.rate(), Baseline: same.rate(), Unit: "runs/s",
+		Extra: []string{kv("baseline_is", "pgxpool writing every row the service writes, one transaction per run")}}
+	rows.Extra = append(append(rows.Extra, latencies("baseline_", same)...), kv("baseline_runs", same.N))
+	rows.Extra = append(rows.Extra, cpuPerRequest("baseline_", same)...)
+	fmt.Fprintln(h.out, rows)
 	return nil
 }
 
-// alternate runs one round of both loads, the service first in even rounds
-// and the baseline first in odd ones, so that a drift of the machine's load
-// during the run weighs on both sides alike.
-func alternate(ctx context.Context, round int, svc *result, service load, base *result, baseline load) {
-	if round%2 == 0 {
-		svc.add(service.run(ctx))
-		base.add(baseline.run(ctx))
-		return
+// rotate runs one round of every load, starting with load round mod n, so
+// that a drift of the machine's load during the run weighs on all alike.
+func rotate(ctx context.Context, round int, loads []load, into []*result) {
+	for i := range loads {
+		k := (round + i) % len(loads)
+		into[k].add(loads[k].run(ctx))
 	}
-	base.add(baseline.run(ctx))
-	svc.add(service.run(ctx))
+}
+
+// alternate runs one round of both loads, the service first in even rounds
+// and the baseline first in odd ones.
+func alternate(ctx context.Context, round int, svc *result, service load, base *result, baseline load) {
+	rotate(ctx, round, []load{service, baseline}, []*result{svc, base})
 }
 
 // loadErrors refuses a measurement in which requests failed.

@@ -16,7 +16,12 @@ type target struct {
 	Value float64
 }
 
-func (t target) String() string { return t.On + t.Op + strconv.FormatFloat(t.Value, 'g', -1, 64) }
+func (t target) String() string {
+	if t.On == "" {
+		return "none"
+	}
+	return t.On + t.Op + strconv.FormatFloat(t.Value, 'g', -1, 64)
+}
 
 // met reports whether the line reaches its target.
 func (t target) met(service, ratio float64) bool {
@@ -55,7 +60,10 @@ func (l line) ratio() float64 {
 func (l line) String() string {
 	r := l.ratio()
 	met := "no"
-	if l.Target.met(l.Service, r) {
+	switch {
+	case l.Target.On == "": // a line shown for comparison, with no target
+		met = "n/a"
+	case l.Target.met(l.Service, r):
 		met = "yes"
 	}
 	parts := []string{
