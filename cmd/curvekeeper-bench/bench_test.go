@@ -86,21 +86,30 @@ func TestLineFormat(t *testing.T) {
 	}
 }
 
-// TestBulkLoadServesHistory: the bulk load writes curves the store lists
-// through the cursor and whose report decodes, with tiny counts.
-func TestBulkLoadServesHistory(t *testing.T) {
+// benchDB returns a fresh migrated database, its URL, and a store on it
+// that holds the bench method as the harness creates it.
+func benchDB(t *testing.T) (string, *store.DB) {
+	t.Helper()
 	url := dbtest.NewURL(t)
 	ctx := context.Background()
 	db, err := store.Open(ctx, url)
 	if err != nil {
 		t.Fatal(err)
 	}
-	defer db.Close()
+	t.Cleanup(db.Close)
 	_, _, err = db.CreateMethod(ctx, store.MethodInput{Name: benchMethod, Model: calib.Linear, Weighting: calib.WeightInvX2,
 		Confidence: 0.95, Analytes: []store.Analyte{{Name: benchAnalyte, Unit: "mg/L"}}, Acceptance: calib.DefaultPolicy()}, "test")
 	if err != nil {
 		t.Fatal(err)
 	}
+	return url, db
+}
+
+// TestBulkLoadServesHistory: the bulk load writes curves the store lists
+// through the cursor and whose report decodes, with tiny counts.
+func TestBulkLoadServesHistory(t *testing.T) {
+	url, db := benchDB(t)
+	ctx := context.Background()
 	if err := bulkLoadCurves(ctx, url, 400, 120); err != nil {
 		t.Fatal(err)
 	}
@@ -140,18 +149,8 @@ func TestBulkLoadServesHistory(t *testing.T) {
 // leaves the rows the service keeps for such a run, in the copies of its
 // tables, with a report that is the engine's fit of the run.
 func TestSameRowsBaselineWritesTheRecord(t *testing.T) {
-	url := dbtest.NewURL(t)
+	url, db := benchDB(t)
 	ctx := context.Background()
-	db, err := store.Open(ctx, url)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer db.Close()
-	_, _, err = db.CreateMethod(ctx, store.MethodInput{Name: benchMethod, Model: calib.Linear, Weighting: calib.WeightInvX2,
-		Confidence: 0.95, Analytes: []store.Analyte{{Name: benchAnalyte, Unit: "mg/L"}}, Acceptance: calib.DefaultPolicy()}, "test")
-	if err != nil {
-		t.Fatal(err)
-	}
 	if _, _, err := db.CreateToken(ctx, "bench-instrument", []string{"runs:write"}, "test"); err != nil {
 		t.Fatal(err)
 	}

@@ -48,35 +48,33 @@ func (h *harness) fit(ctx context.Context) error {
 	// database's autovacuum after the history load, say) then weighs on
 	// one repeat, not on one side.
 	goNs, pyNs := math.Inf(1), math.Inf(1)
-	runGo := func() error {
+	// side returns one repeat of a side: it runs the command made by mk and
+	// keeps the least ns/op that re finds in its output in best.
+	side := func(what string, re *regexp.Regexp, best *float64, mk func() *exec.Cmd) func() error {
+		return func() error {
+			out, err := mk().CombinedOutput()
+			if err != nil {
+				return fmt.Errorf("%s: %w\n%s", what, err, out)
+			}
+			ns, err := bestNs(re, out)
+			if err != nil {
+				return fmt.Errorf("%s: %w\n%s", what, err, out)
+			}
+			*best = math.Min(*best, ns)
+			return nil
+		}
+	}
+	runGo := side("calib benchmark", goNsPerOp, &goNs, func() *exec.Cmd {
 		cmd := exec.CommandContext(ctx, h.calibTest, "-test.run", "^$", "-test.bench", "^BenchmarkFullReport$",
 			"-test.benchtime", strconv.Itoa(h.cfg.FitLoops)+"x", "-test.count", "7")
 		cmd.Dir = filepath.Join(h.root, "calib")
-		out, err := cmd.CombinedOutput()
-		if err != nil {
-			return fmt.Errorf("calib benchmark: %w\n%s", err, out)
-		}
-		ns, err := bestNs(goNsPerOp, out)
-		if err != nil {
-			return fmt.Errorf("go benchmark: %w\n%s", err, out)
-		}
-		goNs = math.Min(goNs, ns)
-		return nil
-	}
-	runPy := func() error {
+		return cmd
+	})
+	runPy := side("statsmodels benchmark", pyNsPerOp, &pyNs, func() *exec.Cmd {
 		cmd := exec.CommandContext(ctx, python, fitScriptFile)
 		cmd.Dir = h.root
-		out, err := cmd.CombinedOutput()
-		if err != nil {
-			return fmt.Errorf("statsmodels benchmark: %w\n%s", err, out)
-		}
-		ns, err := bestNs(pyNsPerOp, out)
-		if err != nil {
-			return fmt.Errorf("statsmodels benchmark: %w\n%s", err, out)
-		}
-		pyNs = math.Min(pyNs, ns)
-		return nil
-	}
+		return cmd
+	})
 	for round := 0; round < fitRounds; round++ {
 		h.progress("fit round %d/%d: BenchmarkFullReport and statsmodels", round+1, fitRounds)
 		first, second := runGo, runPy
