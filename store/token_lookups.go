@@ -112,9 +112,10 @@ func (l *tokenLookups) run(batch []*tokenLookup) {
 // pg_stat_statements under the ingest load (as many plans as calls, about
 // 0.1 ms of planning each):
 //   - unnest of an array parameter: a custom plan counts the array's
-//     elements, a generic one assumes 100 rows, so the custom plan always
-//     looked cheaper for the few questions of a batch. The arrays go through
-//     a scalar subquery, which neither plan can see into;
+//     elements, a generic one uses a fixed estimate (100 rows, from memory of
+//     unnest's declared row count), so the custom plan always looked cheaper
+//     for the few questions of a batch. The arrays go through a scalar
+//     subquery, which neither plan can see into;
 //   - a NULL curve id: the custom plan folds the curve subquery away. A
 //     question without a curve has its own statement without it.
 const sqlTokenLookups = `
