@@ -3,6 +3,7 @@ package main
 import (
 	"math"
 	"slices"
+	"strings"
 	"testing"
 	"time"
 
@@ -75,7 +76,7 @@ func findDemoDefects(t *testing.T, now time.Time) demoDefects {
 			if failed := failedNames(rep); slices.Contains(failed, calib.CheckMandel) && rep.Verdict == "fail" {
 				d.mandel = append(d.mandel, r.AcquiredAt)
 			} else if rep.Verdict == "fail" {
-				d.otherFailures = append(d.otherFailures, "NO3-N "+r.AcquiredAt.Format(time.DateOnly)+" "+failedString(failed))
+				d.otherFailures = append(d.otherFailures, "NO3-N "+r.AcquiredAt.Format(time.DateOnly)+" "+strings.Join(failed, ","))
 			}
 		case demoICPMS:
 			d.icp++
@@ -98,22 +99,11 @@ func findDemoDefects(t *testing.T, now time.Time) demoDefects {
 			if flagged && as.Verdict == "fail" {
 				d.badAs = append(d.badAs, r.AcquiredAt)
 			} else if as.Verdict == "fail" {
-				d.otherFailures = append(d.otherFailures, "As "+r.AcquiredAt.Format(time.DateOnly)+" "+failedString(failedNames(as)))
+				d.otherFailures = append(d.otherFailures, "As "+r.AcquiredAt.Format(time.DateOnly)+" "+strings.Join(failedNames(as), ","))
 			}
 		}
 	}
 	return d
-}
-
-func failedString(s []string) string {
-	out := ""
-	for i, x := range s {
-		if i > 0 {
-			out += ","
-		}
-		out += x
-	}
-	return out
 }
 
 // TestDemoScenarioEveryDay builds the scenario on every day of a week and
