@@ -138,3 +138,40 @@ func TestEnsureTokenIsIdempotent(t *testing.T) {
 	_, _, err = db.EnsureToken(ctx, "bootstrap", "short", []string{store.ScopeAdmin})
 	wantKind(t, err, store.KindInvalid)
 }
+
+func TestLiveTokensCreatedBy(t *testing.T) {
+	db := newDB(t)
+	ctx := context.Background()
+	a, _, err := db.CreateToken(ctx, "loader-a", []string{store.ScopeAdmin}, "loader")
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, _, err := db.CreateToken(ctx, "loader-b", []string{store.ScopeResultsRead}, "loader")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, _, err := db.CreateToken(ctx, "someone else's", []string{store.ScopeResultsRead}, "admin-test"); err != nil {
+		t.Fatal(err)
+	}
+	got, err := db.LiveTokensCreatedBy(ctx, "loader")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(got) != 2 || got[0].ID != a || got[1].ID != b || got[1].Name != "loader-b" ||
+		!slices.Equal(got[1].Scopes, []string{store.ScopeResultsRead}) {
+		t.Errorf("LiveTokensCreatedBy = %+v, want loader-a (%s) then loader-b (%s)", got, a, b)
+	}
+	if err := db.RevokeToken(ctx, a, "loader"); err != nil {
+		t.Fatal(err)
+	}
+	got, err = db.LiveTokensCreatedBy(ctx, "loader")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(got) != 1 || got[0].ID != b {
+		t.Errorf("after revoking %s: %+v, want only %s", a, got, b)
+	}
+	if got, err := db.LiveTokensCreatedBy(ctx, "nobody"); err != nil || len(got) != 0 {
+		t.Errorf("LiveTokensCreatedBy(nobody) = %v, %v; want none", got, err)
+	}
+}
