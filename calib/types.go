@@ -12,7 +12,7 @@ package calib
 // EngineVersion identifies the numerical behaviour of this package. It is
 // stored with every fit so that history never silently changes; bump it
 // whenever a reported number could change for the same input.
-const EngineVersion = "calib/1.0.0"
+const EngineVersion = "calib/1.1.0"
 
 // Model is the form of the response curve.
 type Model string
