@@ -40,6 +40,7 @@ func ExampleFit() {
 	// mandel passed=true
 	// back_calculation passed=true
 	// r_squared passed=true
+	// monotonic passed=true
 }
 
 // Predict an unknown read twice, diluted 1:10, with its Fieller interval.
@@ -99,5 +100,5 @@ func ExampleDefaultPolicy() {
 	p := calib.DefaultPolicy()
 	fmt.Println(p.MinLevels, p.BackCalcTolerancePct, p.BackCalcLowTolerancePct, p.MinRSquared, p.Mandatory)
 	// Output:
-	// 6 15 20 0.99 [min_levels back_calculation r_squared mandel]
+	// 6 15 20 0.99 [min_levels back_calculation r_squared mandel monotonic]
 }

@@ -74,7 +74,7 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		N:                  n,
 		Levels:             len(d.levels),
 		Confidence:         opt.Confidence,
-		Range:              Range{Low: d.levels[0].x, High: d.levels[len(d.levels)-1].x},
+		Range:              workingRange(d.levels),
 		Engine:             EngineVersion,
 	}
 	m.cautions = cautionTexts
@@ -104,6 +104,7 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		r.SxxW += w[i] * dx * dx
 	}
 
+	nf := fitNoise(d, opt.Model, f)
 	r.Points = make([]PointResult, len(points))
 	var v [3]float64
 	for i, pt := range points {
@@ -124,7 +125,9 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		pr.Fitted, pr.Residual = d.y[k]-f.resid[k], f.resid[k]
 		pr.WeightedResidual = math.Sqrt(w[k]) * f.resid[k]
 		pr.Leverage = f.lev[k]
-		if f.s > 0 && 1-f.lev[k] > 1e-10 {
+		// An exact fit's residuals are rounding, which studentising would
+		// blow up to the size of real ones: they stay 0.
+		if !nf.exact && f.s > 0 && 1-f.lev[k] > 1e-10 {
 			pr.Studentized = pr.WeightedResidual / (f.s * math.Sqrt(1-f.lev[k]))
 			pr.CooksDistance = pr.Studentized * pr.Studentized * f.lev[k] / (float64(p) * (1 - f.lev[k]))
 		}
@@ -139,7 +142,7 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	if len(dt.t.b) > start {
 		dt.keep(&r.Limits.Detail, start, len(dt.t.b))
 	}
-	r.Checks = computeChecks(r, d, &des, f, w, opt.Policy, m.checks[:0], &dt)
+	r.Checks = computeChecks(r, d, &des, f, w, nf, opt.Policy, m.checks[:0], &dt)
 	dt.done()
 	r.Verdict = verdict(r.Checks)
 	if !r.finite() {
@@ -300,13 +303,15 @@ func FailedReport(points []Point, opt Options, cause error) *Report {
 			continue
 		}
 		r.N++
-		if !have || x < lo {
+		// The working range starts at the lowest non-zero standard (see
+		// workingRange); with only blanks it is [0, 0].
+		if x != 0 && (!have || x < lo) {
 			lo = x
 		}
-		if !have || x > hi {
-			hi = x
+		if x != 0 {
+			have = true
 		}
-		have = true
+		hi = max(hi, x)
 		seen := false
 		for _, v := range xs {
 			if v == x {

@@ -12,7 +12,7 @@ package calib
 // EngineVersion identifies the numerical behaviour of this package. It is
 // stored with every fit so that history never silently changes; bump it
 // whenever a reported number could change for the same input.
-const EngineVersion = "calib/1.0.0"
+const EngineVersion = "calib/1.1.0"
 
 // Model is the form of the response curve.
 type Model string
@@ -53,6 +53,7 @@ const (
 	CheckIntercept        = "intercept"
 	CheckResidualRuns     = "residual_runs"
 	CheckOutliers         = "outliers"
+	CheckMonotonic        = "monotonic"
 )
 
 // Prediction flags.
@@ -63,6 +64,7 @@ const (
 	FlagBelowLOQ     = "below_loq"          // below the ICH Q2 quantification limit
 	FlagNegative     = "negative"           // negative point estimate
 	FlagNoRoot       = "no_root_in_range"   // no root on the calibrated (monotone) branch of the curve
+	FlagAmbiguous    = "ambiguous_root"     // two roots in the working range (curve not monotonic): no concentration
 	FlagUnbounded    = "unbounded_interval" // Fieller g ≥ 1 or band does not close: no finite interval
 	FlagExtrapolated = "extrapolated"       // set together with below_range or above_range
 )
@@ -213,7 +215,8 @@ type Limits struct {
 	Detail         string
 }
 
-// Range is the working range, from the lowest to the highest accepted standard.
+// Range is the working range, from the lowest to the highest accepted
+// non-zero standard (a blank in the fit does not extend it; see workingRange).
 type Range struct {
 	Low  float64
 	High float64
@@ -230,6 +233,18 @@ type Prediction struct {
 	MeanResponse  float64
 	Dilution      float64
 	Cautions      []string // the same cautions as every Report (see Cautions)
+}
+
+// HasEstimate reports whether the prediction carries a concentration: not
+// when the curve has no root for the response, nor when it has two in the
+// working range (then Concentration and StandardError are 0 and mean nothing).
+func (p *Prediction) HasEstimate() bool {
+	for _, f := range p.Flags {
+		if f == FlagNoRoot || f == FlagAmbiguous {
+			return false
+		}
+	}
+	return true
 }
 
 // Interval is a confidence interval. When Bounded is false Low and High are 0
