@@ -119,6 +119,24 @@ func (e CurveStatus) Valid() bool {
 	}
 }
 
+// Defines values for FitFlag.
+const (
+	FitFlagDominantLevelWeight FitFlag = "dominant_level_weight"
+	FitFlagFewReplicatesForS2  FitFlag = "few_replicates_for_s2"
+)
+
+// Valid indicates whether the value is a known member of the FitFlag enum.
+func (e FitFlag) Valid() bool {
+	switch e {
+	case FitFlagDominantLevelWeight:
+		return true
+	case FitFlagFewReplicatesForS2:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for HealthStatus.
 const (
 	HealthOK    HealthStatus = "ok"
@@ -257,6 +275,30 @@ func (e Scope) Valid() bool {
 	}
 }
 
+// Defines values for SigmaBasis.
+const (
+	SigmaBasisAuto          SigmaBasis = "auto"
+	SigmaBasisBlankSd       SigmaBasis = "blank_sd"
+	SigmaBasisLowestLevelSd SigmaBasis = "lowest_level_sd"
+	SigmaBasisResidualSd    SigmaBasis = "residual_sd"
+)
+
+// Valid indicates whether the value is a known member of the SigmaBasis enum.
+func (e SigmaBasis) Valid() bool {
+	switch e {
+	case SigmaBasisAuto:
+		return true
+	case SigmaBasisBlankSd:
+		return true
+	case SigmaBasisLowestLevelSd:
+		return true
+	case SigmaBasisResidualSd:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for TrendParameter.
 const (
 	TrendParameterIntercept  TrendParameter = "intercept"
@@ -322,13 +364,15 @@ func (e VerificationKind) Valid() bool {
 
 // Defines values for Weighting.
 const (
-	WeightingAuto  Weighting = "auto"
-	WeightingInvS2 Weighting = "1/s^2"
-	WeightingInvX  Weighting = "1/x"
-	WeightingInvX2 Weighting = "1/x^2"
-	WeightingInvY  Weighting = "1/y"
-	WeightingInvY2 Weighting = "1/y^2"
-	WeightingNone  Weighting = "none"
+	WeightingAuto     Weighting = "auto"
+	WeightingInvS2    Weighting = "1/s^2"
+	WeightingInvSqrtX Weighting = "1/x^0.5"
+	WeightingInvSqrtY Weighting = "1/y^0.5"
+	WeightingInvX     Weighting = "1/x"
+	WeightingInvX2    Weighting = "1/x^2"
+	WeightingInvY     Weighting = "1/y"
+	WeightingInvY2    Weighting = "1/y^2"
+	WeightingNone     Weighting = "none"
 )
 
 // Valid indicates whether the value is a known member of the Weighting enum.
@@ -337,6 +381,10 @@ func (e Weighting) Valid() bool {
 	case WeightingAuto:
 		return true
 	case WeightingInvS2:
+		return true
+	case WeightingInvSqrtX:
+		return true
+	case WeightingInvSqrtY:
 		return true
 	case WeightingInvX:
 		return true
@@ -547,9 +595,15 @@ type Curve struct {
 	EngineVersion string `json:"engine_version"`
 
 	// Exclusion Present on an exclusion revision.
-	Exclusion  *Exclusion `json:"exclusion,omitempty"`
-	ID         UUID       `json:"id"`
-	Instrument string     `json:"instrument"`
+	Exclusion *Exclusion `json:"exclusion,omitempty"`
+
+	// Flags Facts about the fit that decide no verdict.
+	Flags []FitFlag `json:"flags"`
+
+	// HeaviestLevel The level holding the largest share of the total weight.
+	HeaviestLevel *LevelShare `json:"heaviest_level,omitempty"`
+	ID            UUID        `json:"id"`
+	Instrument    string      `json:"instrument"`
 
 	// Levels Distinct levels in the fit.
 	Levels int `json:"levels"`
@@ -596,13 +650,16 @@ type Curve struct {
 	// Unit UCUM code of the analyte's concentration unit.
 	Unit string `json:"unit"`
 
-	// VarianceModel With `1/s^2`, the model of the response SD, s(x) = c0 + c1·x.
+	// VarianceModel With `1/s^2`, the variance function of the response SD: kind `power`,
+	// s(x) = c0·max(x, x_min)^c1 with x_min the smallest non-zero fitted
+	// concentration; kind `linear_sd` (curves of calib/1.0.0),
+	// s(x) = c0 + c1·x.
 	VarianceModel *VarianceModel `json:"variance_model,omitempty"`
 
 	// Verdict `fail` when any mandatory check failed or the curve could not be fitted.
 	Verdict Verdict `json:"verdict"`
 
-	// WeightCandidates With `auto`, every candidate's score; empty otherwise.
+	// WeightCandidates Every candidate's score, with `auto` and with a fixed weighting alike (empty on curves of calib/1.0.0 with a fixed weighting).
 	WeightCandidates []WeightCandidate `json:"weight_candidates"`
 
 	// WeightConvention How weights are scaled, e.g. normalised to sum to n before `residual_sd`.
@@ -610,6 +667,9 @@ type Curve struct {
 
 	// Weighting The scheme used (the one chosen when `auto` was requested).
 	Weighting Weighting `json:"weighting"`
+
+	// WeightingAdvised The scheme `auto` chooses for these readings, also when the method fixed another; absent when no candidate could be scored.
+	WeightingAdvised *Weighting `json:"weighting_advised,omitempty"`
 
 	// WeightingRequested The scheme the method asked for.
 	WeightingRequested Weighting `json:"weighting_requested"`
@@ -705,10 +765,17 @@ type CurveSummary struct {
 	// Verdict `fail` when any mandatory check failed or the curve could not be fitted.
 	Verdict Verdict `json:"verdict"`
 
-	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-	// replicate SDs; `auto` chooses among the others by the smallest sum of
-	// absolute relative errors of the back-calculated standards and reports
-	// every candidate in `weight_candidates`.
+	// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+	// power of its concentration or response (Almeida et al., J.
+	// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+	// variance function s(x) = c0·x^c1 fitted across levels to log(level
+	// SD) against log(concentration), never by a level's own SD; it is a
+	// candidate of `auto` only when every non-zero level has the method's
+	// `weighting_options.min_replicates` readings. `auto` chooses the
+	// candidate with the smallest sum of absolute relative errors of the
+	// back-calculated standards among those in which no level holds more
+	// than half of the total weight. Every curve reports all candidates in
+	// `weight_candidates`, also when the method fixed its weighting.
 	Weighting Weighting `json:"weighting"`
 }
 
@@ -749,6 +816,12 @@ type ExclusionRequest struct {
 	// Reason Why the readings are excluded.
 	Reason Text `json:"reason"`
 }
+
+// FitFlag A fact about a fit that decides no verdict. `dominant_level_weight`:
+// one level holds more than half of the total weight (see
+// `heaviest_level`); `few_replicates_for_s2`: `1/s^2` was used with a
+// level that has fewer readings than the method's `min_replicates`.
+type FitFlag string
 
 // Health defines model for Health.
 type Health struct {
@@ -800,6 +873,14 @@ type LateSampleInput struct {
 	Responses Responses `json:"responses"`
 }
 
+// LevelShare The level holding the largest share of the total weight.
+type LevelShare struct {
+	Concentration float64 `json:"concentration"`
+
+	// Share Σw of the level's readings over Σw of all fitted readings.
+	Share float64 `json:"share"`
+}
+
 // Limits Detection and quantification limits, in concentration units except `critical_value` (a response); null when not computed.
 type Limits struct {
 	// CriticalConcentration ISO 11843-2 critical value of the net concentration, x_c.
@@ -819,6 +900,12 @@ type Limits struct {
 
 	// Loq ICH Q2 quantification limit, 10·σ/S.
 	Loq *float64 `json:"loq"`
+
+	// Sigma The value of σ, in response units; absent when `sigma_basis` is.
+	Sigma *float64 `json:"sigma,omitempty"`
+
+	// SigmaBasis The σ used (never `auto`); absent when not computed and on curves of calib/1.0.0 (which used the residual SD).
+	SigmaBasis *SigmaBasis `json:"sigma_basis,omitempty"`
 }
 
 // Method defines model for Method.
@@ -847,11 +934,21 @@ type Method struct {
 	PendingCurvesInForce bool   `json:"pending_curves_in_force"`
 	Revision             int    `json:"revision"`
 
-	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-	// replicate SDs; `auto` chooses among the others by the smallest sum of
-	// absolute relative errors of the back-calculated standards and reports
-	// every candidate in `weight_candidates`.
+	// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+	// power of its concentration or response (Almeida et al., J.
+	// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+	// variance function s(x) = c0·x^c1 fitted across levels to log(level
+	// SD) against log(concentration), never by a level's own SD; it is a
+	// candidate of `auto` only when every non-zero level has the method's
+	// `weighting_options.min_replicates` readings. `auto` chooses the
+	// candidate with the smallest sum of absolute relative errors of the
+	// back-calculated standards among those in which no level holds more
+	// than half of the total weight. Every curve reports all candidates in
+	// `weight_candidates`, also when the method fixed its weighting.
 	Weighting Weighting `json:"weighting"`
+
+	// WeightingOptions A method's weighting options, every default filled.
+	WeightingOptions WeightingOptions `json:"weighting_options"`
 }
 
 // MethodList defines model for MethodList.
@@ -884,11 +981,21 @@ type MethodRequest struct {
 	// PendingCurvesInForce Whether a passing curve that awaits review may be the curve in force (default false).
 	PendingCurvesInForce *bool `json:"pending_curves_in_force,omitempty"`
 
-	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-	// replicate SDs; `auto` chooses among the others by the smallest sum of
-	// absolute relative errors of the back-calculated standards and reports
-	// every candidate in `weight_candidates`.
+	// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+	// power of its concentration or response (Almeida et al., J.
+	// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+	// variance function s(x) = c0·x^c1 fitted across levels to log(level
+	// SD) against log(concentration), never by a level's own SD; it is a
+	// candidate of `auto` only when every non-zero level has the method's
+	// `weighting_options.min_replicates` readings. `auto` chooses the
+	// candidate with the smallest sum of absolute relative errors of the
+	// back-calculated standards among those in which no level holds more
+	// than half of the total weight. Every curve reports all candidates in
+	// `weight_candidates`, also when the method fixed its weighting.
 	Weighting Weighting `json:"weighting"`
+
+	// WeightingOptions A method's weighting options; a field left out takes its default.
+	WeightingOptions *WeightingOptionsInput `json:"weighting_options,omitempty"`
 }
 
 // Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
@@ -1288,6 +1395,16 @@ type SamplesRequest struct {
 // Scope defines model for Scope.
 type Scope string
 
+// SigmaBasis The σ of the ICH Q2(R2) limits LOD = 3.3·σ/S and LOQ = 10·σ/S.
+// `blank_sd`: the SD of the readings at nominal zero (also those
+// excluded from the fit); `lowest_level_sd`: s/√w of a reading at the
+// lowest non-zero standard, the SD the weighting implies there (equal
+// to the residual SD when unweighted); `residual_sd`: the residual SD,
+// the SD of a reading of unit weight; `auto` (the default): `blank_sd`
+// when the run has `min_replicates` or more blank readings, else
+// `lowest_level_sd`.
+type SigmaBasis string
+
 // Standard defines model for Standard.
 type Standard struct {
 	Analyte       string    `json:"analyte"`
@@ -1403,7 +1520,10 @@ type UUID = openapi_types.UUID
 // Unit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
 type Unit = string
 
-// VarianceModel With `1/s^2`, the model of the response SD, s(x) = c0 + c1·x.
+// VarianceModel With `1/s^2`, the variance function of the response SD: kind `power`,
+// s(x) = c0·max(x, x_min)^c1 with x_min the smallest non-zero fitted
+// concentration; kind `linear_sd` (curves of calib/1.0.0),
+// s(x) = c0 + c1·x.
 type VarianceModel struct {
 	C0   float64 `json:"c0"`
 	C1   float64 `json:"c1"`
@@ -1489,26 +1609,81 @@ type VerificationRequest struct {
 
 // WeightCandidate defines model for WeightCandidate.
 type WeightCandidate struct {
+	// Advised The scheme `auto` chooses.
+	Advised bool `json:"advised"`
+
+	// Chosen The scheme the fit used.
 	Chosen bool `json:"chosen"`
 
-	// Note Why a candidate was skipped; empty otherwise.
+	// MaxLevelWeightShare The largest share of the total weight one level holds under this candidate; null when it was not fitted.
+	MaxLevelWeightShare *float64 `json:"max_level_weight_share"`
+
+	// Note Why a candidate was skipped or passed over; empty otherwise.
 	Note string `json:"note"`
 
 	// SumAbsRe Σ|%RE| of the back-calculated standards; null when the candidate was skipped.
 	SumAbsRe *float64 `json:"sum_abs_re"`
 
-	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-	// replicate SDs; `auto` chooses among the others by the smallest sum of
-	// absolute relative errors of the back-calculated standards and reports
-	// every candidate in `weight_candidates`.
+	// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+	// power of its concentration or response (Almeida et al., J.
+	// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+	// variance function s(x) = c0·x^c1 fitted across levels to log(level
+	// SD) against log(concentration), never by a level's own SD; it is a
+	// candidate of `auto` only when every non-zero level has the method's
+	// `weighting_options.min_replicates` readings. `auto` chooses the
+	// candidate with the smallest sum of absolute relative errors of the
+	// back-calculated standards among those in which no level holds more
+	// than half of the total weight. Every curve reports all candidates in
+	// `weight_candidates`, also when the method fixed its weighting.
 	Weighting Weighting `json:"weighting"`
 }
 
-// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-// replicate SDs; `auto` chooses among the others by the smallest sum of
-// absolute relative errors of the back-calculated standards and reports
-// every candidate in `weight_candidates`.
+// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+// power of its concentration or response (Almeida et al., J.
+// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+// variance function s(x) = c0·x^c1 fitted across levels to log(level
+// SD) against log(concentration), never by a level's own SD; it is a
+// candidate of `auto` only when every non-zero level has the method's
+// `weighting_options.min_replicates` readings. `auto` chooses the
+// candidate with the smallest sum of absolute relative errors of the
+// back-calculated standards among those in which no level holds more
+// than half of the total weight. Every curve reports all candidates in
+// `weight_candidates`, also when the method fixed its weighting.
 type Weighting string
+
+// WeightingOptions A method's weighting options, every default filled.
+type WeightingOptions struct {
+	// LimitSigma The σ of the ICH Q2(R2) limits LOD = 3.3·σ/S and LOQ = 10·σ/S.
+	// `blank_sd`: the SD of the readings at nominal zero (also those
+	// excluded from the fit); `lowest_level_sd`: s/√w of a reading at the
+	// lowest non-zero standard, the SD the weighting implies there (equal
+	// to the residual SD when unweighted); `residual_sd`: the residual SD,
+	// the SD of a reading of unit weight; `auto` (the default): `blank_sd`
+	// when the run has `min_replicates` or more blank readings, else
+	// `lowest_level_sd`.
+	LimitSigma    SigmaBasis `json:"limit_sigma"`
+	MinReplicates int        `json:"min_replicates"`
+}
+
+// WeightingOptionsInput A method's weighting options; a field left out takes its default.
+type WeightingOptionsInput struct {
+	// LimitSigma The σ of the ICH Q2(R2) limits LOD = 3.3·σ/S and LOQ = 10·σ/S.
+	// `blank_sd`: the SD of the readings at nominal zero (also those
+	// excluded from the fit); `lowest_level_sd`: s/√w of a reading at the
+	// lowest non-zero standard, the SD the weighting implies there (equal
+	// to the residual SD when unweighted); `residual_sd`: the residual SD,
+	// the SD of a reading of unit weight; `auto` (the default): `blank_sd`
+	// when the run has `min_replicates` or more blank readings, else
+	// `lowest_level_sd`.
+	LimitSigma *SigmaBasis `json:"limit_sigma,omitempty"`
+
+	// MinReplicates Fewest readings every non-zero level needs for `1/s^2` to be a
+	// candidate of `auto` (and for a fixed `1/s^2` not to be flagged),
+	// and fewest blank readings `limit_sigma: auto` takes the blank's SD
+	// from. Default 3: an SD from two readings has one degree of
+	// freedom (its 95 % range spans a factor of about 70).
+	MinReplicates *int `json:"min_replicates,omitempty"`
+}
 
 // CurveID defines model for CurveID.
 type CurveID = UUID
@@ -7635,339 +7810,361 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L3dciPJtS72KmnqKBocFUEQzZ6ZJkMRh2J3a7jVfyJ7ZvbxYDYqUZUAUixkoiuzCELT7bDDN963vvED",
-	"nOMH2CfCoXD4bnx//AzWkzhyrcysrEIBLPCnZ7TditA0AVTlf67/9a2fdhI5m0vBhFY7Rz/tTBlNWQ5/",
-	"njOdL0/GmuXmU8pUkvO55lLsHO1csESKVBEtyYJyTUZsLHNGcvMKF5PuTrSTs/cFz1m6c6TzgkU7Kpmy",
-	"GTVNzbjgs2K2c9SLdvRyznaOdrjQbMLynY8fP0Y7c5rTGdN2GKdFfsXOnq2O4d2UkcT8+EgRnpouufl6",
-	"TvV0J9oRdAYNpxuH8h9yNt452vnNfrkK+/ir2v/227NnO2Y8ZymbzaVmIln+iS1XB3JCkowzofeSqVRM",
-	"kEu2JB1KzPuEK0LJRMqUJFPJE7ZL9JRqMqOXzPxiFoyzdCDMEJnSRNExOyaKMaKnjMg5y6np5ZEiQZ/d",
-	"gXCzxf0q5xuMdc8MtrLu9PolExM93Tk66H8dmX3wn82qa81y0+a//HCy99/Tvb/29p52h0d7P/50EB30",
-	"v/74H3b8dimdczHBxRFK58WMCd28Q9z/TnjKhOZjzvKIUEXmUmmWkgXXU8K1Inkh1LpdLDu57W6e+c5h",
-	"2OeFWHem8kI87In6aN5XcykUgxP+B5qe4/abT4kU2q4mnc8znsAB2J/ncpSx2e/+osxAf2rZ41t8Czut",
-	"TvUVzcYyn7GUqKXQ9Doii1yKCTFbTGROKLmiWcGILLTiKZ5HbPaIzNy7A/FPF29eR4QSPBJkMWU5I5SI",
-	"YjZiORmxTIqJiggVpBCXQi4EGXOWpeYVe+KIzAcip2LCyBWXGdUMfn1fsHxJPC3Ae5NKpoiQmpilWZp7",
-	"8DHaOZVinPHkk64eHBSmZJEnhv4oTTUjY5mPuKGK8CNe6A5FIkVydsXZgqWEZjmj6TIidCDwJ3MFZKEJ",
-	"JWOuIyAL+DLcDVh4OmPm/ri7DTRGaZ5lhIuBmf5kqnfteryAYaRMfOoF0fKSCZLR5FIRdmW2TyVyzkjG",
-	"4aZzQeLrPXd19uA3FXd3gIqYk0Cz53ku8085bNcxYabnLjHTGMl0SRRdKiJFtiQD4E7lQ4MdQkVa2WRD",
-	"LD5GO6+lfiELkX7qdTeUKfXHsbwk7JorDSN7S5eZpOk7KV/SfMI+9QBhRdl1wpi9HYrlVyx/pEgixZhP",
-	"ipylJOMzjqO9YPkVT9i3gl5RntFR9skHnFJNR1QxklBhVnJk9pomU5YSIReRoY9uGjxhhsuraaG1oYCp",
-	"XAjDOuqS1J4XpZrGZZ/eD4QuGNo7KV9RsbT8Qf0iN/qR8gc9N2SOKyKvWA5M227afU33W0ELPZU5/yv7",
-	"pLfoFVeKi0lUcrbI8yuZG9otL1lKRozmhhWZValN+vvvv987KfTUSBkJ1WxVtoj/AG/HSNWpIDGQk5hQ",
-	"rXM+KjQjnfMXp+TLr570djdL0HUxDJdunsuEKWXuy3OhuV5+yhX8nmXZnhUouJgXGhn2KGf0EiTdImNE",
-	"jsNrc2xXQMVAwRQxN2wg5HjMRGquEkgKJbEtMmY53LdCFfO5zDVLX7GU03ewHp+a+8OVeKTIKfa6Z0Zh",
-	"LochGFLUJHhCk4TNteqC+Gn7MEM4ge+pSNiZWTYYe5py8w7N3uamAc2NoDimmWL1kZRvEz3NmZrKLFXH",
-	"sJIwhoyNtRHhiAaNwwyJiQkXDDSKMS0yTTpqinJZliGXlgIenDE9lSkcxXkwjp92RjS5HCY0S4aZXAy1",
-	"zFhuRjCcowzGrpOsUPyKvXKKHp5fczqo3jnaSWVhaHpkNBJ84KDXi5r0QhQjzZaXfc64GM6pUsNxThNc",
-	"hp82tt265U8zk6mcSZWwlCrNE66XQ5rNpzeexhN46GOEwojZ9C3fM2LZUI6HY77tmzMqUqpl3qD6nk6Z",
-	"EfYWRvElY8qzIsd/8ahdsTzliT7Gq6CnLFeEGv0gveJK5ktQsTSbqZvGAv28NgoYjOf6DF86KNeX5jk1",
-	"6m4h+PuC2d/NbtkJsGzrWV8Pc/WwR8Ec5YxdsUxZ/RwffRK+1181kuCL+VC9L2iOjPIO518WOuMsHyZS",
-	"Xqph+mCTdf0oXYAubln8g/SVF0Jtud9XLOdjyzFWKUH12H/47bMPRkEOXjEqoEhpnpLO2el3+6en3+2S",
-	"GV0SQ1sJnVAujJ6g1UAIOeNGmQD1ukueWSrc70WEGkmIfHtBnr89IRff7319+CV5BVSYfN3r9Z4NREIz",
-	"PrIcJewer1hGRzKHq/pIWfJNFNMKRDUjl4Lh6AFW/KP/Ro7+whJtFrRkTW9lxpPllpztOSiQnqkZvjSW",
-	"ecIix7dUybG2ZlGrU707w9mGsbR4ez2baPFyA5No8VYji2jxXoVBbE/PKxS8gVy3GkGFWLd5o0J6b0Vh",
-	"21DSLd6q0cUWb1apXIsXtqFxRsZFOpdlcsFSc/uaKZ4inTQgYuvJF4iSNw7zY6j5/BBuVO1oNB3Ytfdm",
-	"/XWMNhKLzYSgfk6qJ3H1Hlb2rHnrV49ReME27uGPTVTYHY+6z0LxiYCGjO4AC9y8O54H9LpPQh7Q7fV6",
-	"Bw1n7ETQbIn670ZqX6XXaFxvb8IHQU/faHA3z9QPFHRl329csSLl+vmV0yPbz6FkDjXV2CjCC6pIKgWL",
-	"COtOuiTOC9FNckY1S+OIxGAI7o65rnym83kur8JvcmaGydK4u+qNicwIZIO3zhBap3ujjRZ0c2oaam6n",
-	"RkWpZnuaz1jTsynTlGfN9GNOc82TIqO5iggXSVaAXk+dMTwH0xJVUnQbnUvhtlFzn3CC0Y6/frb3tfv4",
-	"Uk623EV25XyhrThZcFpWWFltBrblprGe0sIMT605PGhrVobCcgUGETQzHFmrAtxhJ2QGJlVLlgciyblm",
-	"OadknMsZmRejjKspS8mk4Kl5uUF8pEmSs5RrIDTRQORsUmTmR+jfCpcXb96CZYHMc5awlEFTuLlktAQv",
-	"Ds3MlU3JnOVKioHwruKMUcWsK9Ot9MrpmnHhdL1VQQGkiC2312xhoZHFVlf6hXmcLKYMrR+JaZwksshS",
-	"Yk3A7l1YLUFiwwtYGpvNgL5gZWI8kjF6EBbTZXC0R1JmjIrqtVmZM9hUmy9UIA7DUTAjMowHbIrHRBRZ",
-	"Vp/BlJqjIsCnt6BonXITaab4phU0uqNesFneqx9XZtT8wH5kfd16aoYLI0pZ4hyK3kAAxoEFV8xOLLQQ",
-	"rC5eG25RETFxp4LVDhpDr0njVHLmLY9463RpNUvkjMF1aqSgytwbI4Gs2Ufw9btnzNbMGFVwZ0EtDLfy",
-	"zhvWzP/KEboT55cpKm9JVfawS7WR7Jbr3hQoAQfAsqKAds1BQzwicSntGZ6H4l4cDUQciHrml7qUZ77z",
-	"gpqhU1wK850XzaCRnJlfrtjQia5DNMFHJPaSGrzFFE8Lmg2NtGa+sCKZglbSnI913CX2D3cPzXoRqgkX",
-	"E6b0EUxRsIWPUVGZnHsqPRB4Q6iAg3XxzNvGwdNbBk2YXymKVI8U6ffITCpNDLUVeiCcgICdqKj0GH/P",
-	"lJ7QPCUoMcAZVqSjGBuI+I/P35H9q4N9nTORqni3S84qt44UImNKhbc44wrsCISqgfBnIrLXwrzsTc1w",
-	"aseGvRs5Q5CDHqmNcyDANRm5frAB3yrpAH3Fb3OGhn5So1271pghjDTaqCZUFYQG1SAU7u2ZMRJ6IM2v",
-	"OTChZA9PBcelFODNn3BEgntiKUS0c71nRr53RXPwfZgpwM15xcVLNw38ws0FPr2kyeWb8QuYDnzxzeqc",
-	"4Ps/0OTytDIv+Pr8ws8NP9sJXtj5PbfTgx/Pgjnap3Gi5zhP+O5NOVn4/AxnjHEZ5pSitaqJGjhLWBI+",
-	"aARFJA/+1BtR/Qbl5KAX/O8G4+CpEZBAVmkgzgu5p3hqTqp/CrUjc0Fh069opiLS6z4hWpJe9+nTpzcq",
-	"Tk+fPq2oTk+aR6Vzmb00pFhtaSu7mLLFlOYg+5lG0C2rSOfs4g356uuvenv9XcdSfKzJiCqWccG6DRyk",
-	"SbEZTvlk2tLQYN/I5KLlC7D/rOXDC5oLLibbDMi90nZENZ5ph1dtpzaQyqyjyqI18kncqvMia+SUJf02",
-	"wkfHf2Sa0KwbkdOMiy45nbJZl/S/Ip2Dp18f7JLDp493j0h8sNdX8QCkPgziGrGlFCn5+d/6htV07Lh3",
-	"j82jj1UMrkL/zGNy8eyYxH3TCNELORCJFIolhSEU7jHPq6BFOG/HJD7fO8R3SPBKZJofCDqSV4z8Dp53",
-	"Pl0Q+yBKbEH+/r/8r33s+XDvQMVkLIucrPaMnBO6Pgi7Puhdx0QzUXnFejLhaYhis1zWMN4q/zBLthPt",
-	"mOXYiXb6+MlMZyfaMeMxv/WuW1Jys6kH2IL567H7q++/Oz90fx0e+OdM++ZkFLlqUuPfzOn7gpFLtlRM",
-	"G06qZE465hp/eVjk5dWeG8ohJmBtC2I+nxz0W8V8Dvd+/N1/aJJpIRJ3W/80QZsGMv4u+d4pJzmjZpCq",
-	"qmHZh6k55JmRtRLJxmOecCPaG0GsyodVjCpXIq9ozo0kGYN/kc3mehmZfgYCb7RCk4dgpnXTDTxnyF5E",
-	"YquFgCQXj43yFtl2wb0JqtxAGFUOjkydOCKZGFLdqEPY6RYCtC/3dJVlbLKv0NKetvJbEpgNNupC7jnz",
-	"DsxpO0t9k5U+3JnViZ8JMpMpy/bY+wKtxTJPWX5EDMehOflh1IvI6ODHyH4xlDmfcEF+gO/eFzQ10kDi",
-	"novIqP9jxVvczilgbQePm4a/Xgg4bWD9ZhNHKIyn5rNTA71I0Mq2bfp1R7WpX/cbmVGd82vXcbjWEVE/",
-	"/9fOP/+//8f/+P0/7/79f/q/fv4/I5LLhTJiU/Acrndlye5t7TYvLBo1N18HG/dKlb/xIiVKy61uRjpe",
-	"7cFJqCRlk5wxZVZwnDOWyllEhOExZB4o7IHDB8NihlcsV43iKqQbBN5XfB7Jilf/zNwghheNvPD8/kG3",
-	"1+01G2ytKxb723QNn/sHP0Y7PG0XaR6FgfONlibvAKvO9RlXmotE4/FXTiIfoxi+KX/D2hJuJCtWzDWH",
-	"CfTLZuMf/DTM2RVfvydWP3UPNR8vwxorQz9ojKowFOumkb+Chz5GO6Lp9FmmVi4Y6cAeG41CCuZU2EKA",
-	"BnvjYs4lbySv6Bz3IQeWmUZuujInrteITHJZzFlKRktLzbhANqR4SZjbR+KYpX1rhtXEFCoe03qAIJ9M",
-	"QRIIiZQhpJrlRg+EwXQKVAWtv7HCHHZvaa6E3IKb5nUOD30MlHmVbiAvfulTdsWtO7Sz3L/ejZzM+d/+",
-	"84L8ngiygHkTldCM3XYCYFC/cQb4lH3e3IWhBApJs+zNeOfohzYk48e6APc2Zwp2ShAqiKdX/r5FwYXj",
-	"6ObKmT2GaB1FR/WwPdGqyXgN2Wdu8fGBNVwSnF4rZ/uuvE9pqot2t+QCHw18ldVpfHv67SuSyFIrKS0e",
-	"FYuIt3+sEEgnLgxbUa7v7NOeglm598b37GNGjYbDPEyoSLnhzU0OK66nJKaFlnFks0D8448UUYnM2TFK",
-	"6KXVvzX5QSpy6hpsokFujFJcMdFsevpGLuy9xHhEuJyp5drCnJCMK8POJVHFzPwjXIpjHNCHZp6ODZsP",
-	"re/e9/6V1Qv4zuVdMVKYMXVAbxaM2GxDsLbietvbB3HJwF7C0Qz9D/c+rsBMTNUlkm7o/K8sl8MpFWlm",
-	"l2N1G8wj1eOuMOLeJsiRBcuNzjvX1neZy7RIuJgQLsZccM3cTrpDZZ0mghGaSzxamz3LmNGHJMrLI6vS",
-	"R1RNQ3R6mb3dTnoI97959ZtuUdOprS9fTeVapZMV5aLKyEBYrpq2TQfeYB5oQ17o8Kqil+kcKy0ph6eH",
-	"UUUPrmgBgZq6ImU3GsYg4Ve8kNYrt00Exhq36UyiLwUOJx3JQrfXMkZU8Ua//NL6NJH1qSBAkQuykHmq",
-	"GsnDrXR2Z3m5mecUsxnNl6hbzHnO1HpFjBv5nl4xheM2AmJ5kx8pYg3YhE5YzXgsBVu7gGukmUDpoEoP",
-	"wyim9vTou/CtZpKUUfCtVgLVqNGGPQGnOq66V5tM4CsGYNgBdxoijEYJVrhpWsFerz3nL7naNszo1gdo",
-	"C6NP7SjVWaxg13qYrDFTovnSyTTmUTIvj5CVjs1qwdfdm49M01aYPQhH0WatUWvZzn75RrAVNatMWU85",
-	"nQipNE/UMaHBR4jP8UeM61pOJukIiXYCmRMhSS6lBn1nRJPLvcAdaR9AN1kPHnEuSRR+N2XnFJBL3Wje",
-	"CoRLMynoF/mrl+ZvqaskdadfK5sYBDpypZ1d7BYdO4W3OcgDNZJbNg1scq0BJaeT247Zu5dhL5vjcA96",
-	"vZ//1qltKhiyKku9u1/5eGtNE2WGW88HpbaW+x6EvQ7DnptTtLMlcS8oTHeGF245U5S31pkp6ko8KAjH",
-	"pIf32R21+4jGwbNVvzfBUvqh+kMcbNOaNQwO5srtilYIROM5DC7UWoJ64XXhupUEAgABFKFLTsooGHCw",
-	"zDG7c4hWjfjYh4NCHJ2hdN3AL1d92nBeG0oCw8Zg2LbxFeWY32Kr567R4KeTsv3g23PflZ+8ZY/bxghX",
-	"vEX34AKqmNvbtTemPGPpsPQErYYLl0YVzPBD9A2Ojro5VYp0ynAdmfvIod3uxnDOuiBxb5bs7azI92kG",
-	"viFJ5Gaaua1t7Pbmp1X70S0NQFabb2k6+HTqdqjfNqio1XO/QWVtonjPeFY0W5PcL2QM4emATcONognZ",
-	"fFxYZZd0fCjb7y05xOCM//t/I6ltYveYHCCPoSPFBKipt0vXaxEH9Tx0Pm0hE99kEu42+MhtXsKdMg02",
-	"O0OccI7BBdYZZHmYqlClLcj1eskvZ4gvwJrSx9bw+PKdpgO24kuhYsKGmB4BKTI3Kdblow0/VTwCrWDP",
-	"whmE7wcGIttjbaxBmkbzVfIHr51GtmZL2qcKVfZqVb9zJ8dyPOggIgd7I6oQD2HFW3ZsDdtNb9avb+VS",
-	"bvZANh6bjQsY4IZtsYTlRWplDahtV8VD8sTOaX2SRv0Yt7P0vGPXusHCg1Y3RhAuDPOrcy4uCdVkJPWU",
-	"MJGqY+JWscyFyOSCKYymnvLJ1Pxtfds0Z/ZVL9VX7tL9jNc5hiE6qeyotuP1i9W0998wmunpljteig1O",
-	"rpaX2E26bCk9Y79v/rTjhnCOL9fnYLtqGnpwK5uigW2WGhVB/HvknGKRtUtGLiQnJ4rO5uhTDaLcvjxs",
-	"FeT2Yx3jsBd9+fhjY9hbiXD4NmdGpLj1vQvk+PbE6wabNkJvWO3KWqCNIlUolh4TIRd1etSO11bDozbK",
-	"muWTRj6FPWlPW8olvYA36/geN5CXeo6gFxLdOBqPoQ3Z2lLsCaLCXNBX6XkOTS8Y5BiPZCHSMD0sInEm",
-	"FzZk0VCh2AchNljx8O1ma9b6wOf2tqw2eADrgqW3NHFAPLSNkXaykJtf0wa9pJrhcWgHiXSbgEw8IOAx",
-	"dalXmARpbgTk1/Arx0C2vTy3uudpoF9sesvrIa3U57ogFMCObo4lcQ82am/lPStbbNzI2yQzPGOaJei3",
-	"ESl5X1CYgHXloCcywmDHeoyEAozBuSZxknPNE5oNQcOKSYd6j/Lupty6mqfFtZJszmQ5u3hDDg6+Pny8",
-	"1yfuHYee6rwgup7lcj1Mbmtir0zuNsNxaxGR5a1HsS7v+xu5MH0s0XHvFhccGYvp0qx4d00aObPpE83p",
-	"r+GsrBBN8CUzTJyfWdXbJrVmssFVcnb6Dflzn/jB4fmLyOPu45//9v/8z/sXt+7s/drOmk58RA56d+hw",
-	"hSCbS2zGsHKYonWHfnWHNmaBvvL2uK0ot0sIvTHrvo4tVFLdLVL3LRX7eFN0eBsX1s1Rz5DLaO0Shu3Y",
-	"V7aQyWwfo2VriAf7SrX3NfcvaG7FwlILrDHDn/Ar1tzUjF4PQSAd0gkbTmXRFMP32tNg9OeSVFr/6Jzn",
-	"t3U+bhnAa5OUVw1N1ueAIxtyMRy7YJRVWay9XfkebKc2dzswkoar2mwUrcT2+EsShbdt/ZSbd7Me31Me",
-	"zPW04BaRDqjxtb/QlujchMPhml0/1luqd7cgXyjg3pF6VRSmG8wxVcrWzrgRqng/roprmAjT6z590m2g",
-	"JDdbTVpSDCNYZFJMrF09NMo5jHWl6bIMxDLqL7LPezCpf/3V14c3wjneivy0F9830KVmFA4KrjouJnZ9",
-	"EPZnQaHcAvpcZ3RJRiwM4nZGBA/qBYd9txmJ4/5oWhPp8pei8aq61a7BLGPOQEyW5Pdk1CO/I6ODn/92",
-	"fUziSjKB/d3+5BPO4oGovmf+7f/8t+uf/ytmU399+OWXe/0a+AC2DIGSQRc70Y5vt6WRDeb00rUWfHrj",
-	"WoTv/lw2+zHaeQMYw02hWN9PJckpKrylTe0YTGz+ZLmKJEtCMyUJoMvE/zGu2dXaVgypGtb+I1jWDvpf",
-	"NZvW7mpQ+8e0Um2yTYUrUsbS3M7GeD+hp5vAEtD0Vc2VLNS6wJhVoRlIfnvnNz5/Kxc4vrq9vxtRt25z",
-	"Us7hzSblYo07vinMcVgzt1jfd2Uh6pOrSXxuBjdESK4MfOubuMlCUg05RAZuiFJadZ2vIFgBR0IEqzJI",
-	"0iozeD1ua70IrG0tTuo4o5MGkSQG5IIheKPiiMQAcVB+ZNc6p3MsaQMARfB0JhGMyH16b34SbAIRWPC3",
-	"HJq5Gv7umyqENZgOne057g7EBWTMOlum3emSlCc0z5fQHiwkWJ4HIhZSD52RwSxSDLBAJEbahtsf796E",
-	"zNYcyrPyGA+M7RslHfdc8M6wjOpptDGVdnijkMqRplz4NJ54zFmWsbw5SWfGqBhuGa7onHhNyixUO5Jj",
-	"4l3NQQYLxVC89OYE1BrK0KqTbD7P5TWfmfZVJQmu0RPhAKXdYQ+i+M2FYkpDU/dhUuJpQwxjM2jSFQQo",
-	"4o0KFrW+J8EdXT0RmymYZdLbUbB/JPv7Zqu7K1yxGpf54pQ8PXzyFbEFMQga8NSq5XudcRehTMHvCMXC",
-	"LNwY92lnEVDoOZPWM7ua8b4mp/OFhFApmnFbPySyRSwaqoFYUMWWDBmm+sK83Ei2RBl1vrbIB5lTzB9v",
-	"CKyBB6wQs6lKSPzPe1bI3Tsz3EBL8r6Q2iJOYmgYgqM+6fXWYgo2hduafr559+4twQcgpbQSefKkAj91",
-	"2GtMNddcNyERXUxlronCYFdHZdz5Ma00DlXbgix1H/+352dO81i6YK2wMUe7i1wcAc+6ZGzO8iP7zJE9",
-	"IbElpYEyslmYgl/dHIOIwA0W7MrBOfqp5QV55+Aiuat9010bytYUBmHerx35I0LJP128eU3e4kuG60nE",
-	"I5HpMiLxvtE61f6g6PUeJwL+YfZTIrNiZr+KB8LczdOL78AZE+MT3P56ZF+nM2Yfh5tMywp8KBBsXmc3",
-	"r40re+7y8bdwCn4v80uzIiAQRWWqio3rsQviQnvQEmckI8uBaoJlbuv0YOZXdWfv4lu/d3954/Ihcq7R",
-	"bZqqTM1zicZhmsVkMeVZaNyp2H6OSYwovCgESohs0ISrAFfSkFshq+l0GEbr8ulKZ/oxiQ0/mLIsjQei",
-	"JsQDi8AY+si2EJFCjLlG/53MiSrmLFcstd5COhCtuu26abgoMw+9y5Np1U4TrA1mPdjJ70Q7buRtEb6w",
-	"x7eVBu2X52G79rvvffOwg6XcuRqOGIB/uvjCjrXSOS3BynWjjIpLksg8R8fc7jYgidVoxL3V31aO93ko",
-	"vdQzPkqxF+W56G4wI36JtrO0wCCL7Hbw7RssJ9uEKSe0aNraAPEdgMzQCNSlaQXdHVJi/Ofw/MdAtPF7",
-	"H3PdrNy0yMG7OchgS9vMJce6l+6qWZ+QZbZsmEwN5W5/vfwunvqGgi+B+J26Jg1DNUsnCwVGkS1cGxVi",
-	"ugbkAGq7ItmxfGQMW2HR+xuSh2+IxUZi5UfafnzOmmP3xW8rF/rLw0ZUqy2zS+BQDteo8oo1BC28lfZ+",
-	"O8gjxtJjwoVZHYBvMBoCRksD/n2FRK0fdzsbmRmRzcWG8+cuX32RV85HGLruVzScf5ChstEQV7lpzdza",
-	"NP+CsfQTpHlvWbsgpJUNqtGUquFM5mv83htzwN9SpQhVJFYcQBnHtmBqmA1uDoUPfty8z3Ze9ZRvP8Ab",
-	"bJvnHj9pC4nz3dTVbAbAesQ6mvvUl4TVhRss77wh+WV9xEZQDsPXFr1jUY6Et4GVw5V55p6uEK518Rqr",
-	"ESDb5e/7sQWX8IaEkdowAzZjBVWfDNqav5gGT/zL+PncNvGx/OI2Xqn7WPy7Zh0EORBaOvh17yfHoHHr",
-	"MChRT7vr96pxV4qMfQcV29vkkNWomyWqa8wZNiaIiyuZXRl9wHAX3gjo1YavreSk4EavKQHiiNXBXl8R",
-	"C5UcEXO0/U8hqH6zYzy3uM43OCU9BHSlEMXmCwRN+0kEVRnKRW3eLrE1eG9eCEPGS2TOe8hmvpUXsg2o",
-	"qMPY3RZH9BZxdXOJFe2bY1m3RFs5LwRCKzecVDeDNa5XbZiReaeyAG50Ikyk/wtS2kRdtQaxFi+g93+6",
-	"ePMaIKrt59OL74BG3jZ5u729vPT/bPvOFunecm34xB143vYxBudFEFzQgDqIpfZaN+cwEm+MhtsuC7uS",
-	"Me1Xzp/T9YGB4RzKxYlKNJ/NElwhnB74KcGSVo0zyD/nLHd5ae0tGhtuedub1Oh0a72AreDb7yFj7YHR",
-	"DLYN4ticwLICE7Bm9W4bEnoLBvkpqWVI/Da95WPM7kLZfLBr3aK3kdytXkKjcS/DSwhmal/Dciv62DCm",
-	"J9uFc3nauYFSlhNae7x8nNEDU7dtI5rCqJBGWXoLC9OKIGtNLC1jlEoWeX+W3XQtrMfBOtbfpv5yusb0",
-	"F1jQt4EkvpmDN6XkBbPbuJy3yrL8nOOIq1i5H9vqVzZyy0VjsdRX8SxVdQQQXNy3GrYxUPSGyl2NUUVV",
-	"f9+EXjHwHELeIQaYQcxPvHvrtMftka6qql2zomap151Q0r3NYjUIiyTUF4rcSG/ercZD3glKqCWpWhPa",
-	"COV7fUQVgaeMIhy/fXOBxQNR8Nz/iacf98snFdbOgTBDF3bYKY9FQ7WfXXBsrQQlDgS8Zsts5GwM6Nch",
-	"mMaxrdpYxoWVRVdvGb7YZAI2F/uRIjyNCFUWEw3gR8aMpYBaoQhv69e4p3DIe49n3KwiV/3rD+LVug++",
-	"eM/urpVgzFsQrYrz8wbzFS6K9TfKnGCkhllxhMu1rbQ3bN1D2YEIwyhIXPlptRKXRbXwwcmAbMFFS/D1",
-	"rf1uVek6lHjaxZNuE6lav35h7GrVyVi7Jg27v13iZCha/COqBpvuV2NOzFbaAPaubqeYb6vD1iFJHiwB",
-	"6CKRGDrp7LZ5IdTRIuc6SOY4Mqfc236OSmzUdMZFS/MudHReCPW9bRu/wA7OsX34CswvykOlwncn2JEZ",
-	"r7Mz3mOa0i0gpDcB9T2EzlVSpJsAfNdsc8X88AlUr5VFvcExFTwcLu8n1cPuusjgHl118uWMEc2udRCq",
-	"DqnCrnhuMqU5TTTLPZ6MpiMsVIgyn2F1Cc1zTieGbesiF7Vsyb6jCGvSJf9lMLju9fbMf782//mD+c+p",
-	"+c9z8+XBi8Hg+qsXa+pwvpOX7Lbm8FvoUO3lqbWACsrQjC34CtDABoYCHrhmOV2xJGe6Sy6mciEIhPia",
-	"s3JsdOeECqtxANg9qNgtJRPsMfJF83EiN4LFwhbdjjO5RWynj4Z3riEOQCLsDtVkwTPIzSw9mcdEwVpZ",
-	"pQYVTld7u0i5JjqnPOveZQNLHnm4iUGCXPe+YPbnpgIc1Q1oXPOciftkQ64+9o0gBqbfP7iHb+ngvqlQ",
-	"Y6uiitUS4uZCyuYSXeZAaEkuGZubHZ9xkQb4uVwRbeZEOpQEEdO+YHjkwjPKWuJgfdgS+9snFrRa4Lf+",
-	"6QoScKvjiA2sq1mo80IkzZUy3uUFKw1bCy5SuSBTlqVkhjHoVJCDqNfruRWB4rAiQ9BPmaVMafsAoGGZ",
-	"NW4OF7lycTTbuFXC8JsbjcTNYNrlJgSwvv7kB5WfggGGS+bO2A2yevWO3CFU6E5hP0YhvKUeL5pgnqOd",
-	"phqRqCY0VYjsYAHag9016SiVkvy3MTawDBMB1mfMuh78FQaQNqgkdzNHhPWDSWP5sHJnwr7X7v/b8MJb",
-	"cBHTWSYhOWudRdUfUUItXRrLLJMLFUa3uEZAWTcy20oBtBAbPpNtA9GrA7+wvVS/PQv6rP7iyoVepKs/",
-	"XfjRVH94KTGiPSBan8DnvG24PzMUv5loOvAZbVPh7CHzb2BtFa6ca2Dsg+5cglBITWccAWzgYbUGhYaL",
-	"YcitVx+4XaBBM7wiWMbdbj2y09iEXCCY4aQ2fQmqPglJ/EG9rTtkeyyLKo9pzltULjbUP+uCMIM9a18s",
-	"uBrguJFBhea+inXPARP6pM0yZKM8hdUzUJlrEz2CYxxejqKAnkMdrbf3lO6NT/Ze/PjT1x/3wo+H23w8",
-	"6Ddj33zbaJw9IWCeLYRRW2TqE2Jnk/2XgANh//1hPp/9WMfoedzfpHP+d3v/w48/HUSP14ynWh12y+xM",
-	"qPl6sK/+pR9jQWBAc6rDjZKLZxFRnetd8nuS9MjvSHLw89+uG3BXe21RFw9aPuiykzbzN5dD0tuBppsO",
-	"znflrauld0EEtQUaE0tSVseBciPu+tv44bXOsErpI6pc1ZKW3MqO7i2+aD+9gPdx7NWai9sW1mwNHb59",
-	"BbiH9e224WhlRndDjMh4zHImEtZcou23z8jvCdZpG8tCYHU2W7Vvd9/+cUsyDw22ruHXFkCH3RU/Z/vE",
-	"wLZ1Pf9knt9cdM/oJM07YdjYh98++0CokRCx6L1fh0fKVSkOkVBbnE5zEddBsecskVcsX7rx3KFq3p29",
-	"n2UCwYpEZjOmYekeKeKg/RI5Y8oGJ7SyhwVc2lLLm02z7hDXFmvlXoU76xfdX8wgz2FrR1p4vj5dHLF1",
-	"1vjU10albGaYhUNusk/WXMEjBlmNhptinEEDCGWgk9ZL67YvqFvb8Fox2/p0blD5V+70KsvkgmtOs5h0",
-	"zk6/wzCQRArNRcHFJCadU/NtQjM+snQuHFHIKW1DeArt++1Zpm/yzDdTOTBBk7V5faLqveG021tBqnt7",
-	"g/Rd7WKLrb1lXPTG0gzOchIWZ9iqdMmm4LXXtppuDSkLQU9IL/ImcB8VYYTxuxVia1WO7c6M8pP65tqQ",
-	"fcsh1vhIEBH21BXB3/Yegc1qTWqy1Ky5Yjslvug+RlRe8vmcpceEAcK51FOWL7hqBjVSxWxIR2qYNzT+",
-	"3/7zh9+eP//gNJ5KHecAh0atCGhNw7lTSds7YfGG4LvBdCO33HZt12+n7b26OC8ZVXoPzW+KYB+q6xRG",
-	"UgBIHrmyCqjVHVEfssg+A1EC6108U8ckpoWWMUmmUsLbM2nRpGALlZP71IxmGVMAYEXkeCDoSMmsAJyS",
-	"sIy2unHjwBiFUZdqIBDQoNw8LkiM8xr6L1VcBZ8REiwTB/vX+N9/6cO/S/yv/aTgXzO5lvzLL/trbN5/",
-	"PhNX/1z/3K998Z/qn+sPXFS+OIFhfQRLc1LkXC8vzImyBYsYzVl+UmBtshqnN1/LnP8VqMQR+QM8izQ3",
-	"AWekxZzqEnAdqiMSl3EvcUTiMPAF0DMroS+AvZnOuIiPiWLMIsdBygqX4pEi8fWeO+Z76EK0mwNXAsgH",
-	"DKm89lOt5zsfP4JxcSxXpxSgk2FctqoA9xQCjlRGRzK3ZoBAjvGnKjLHXA0Erfy8kmQWuTK8XPsAcbCy",
-	"gDrzSJESen4g5lARA6JwiWJgSAVgDq4jCCnEpiIyzyRW0rliuQqDfRXclEJcCrkQKiJ/PnFACKZJKire",
-	"4YEYiC++cCU4zSa5GFyqEU2q+8UXpAS8J1z5ojDhXAYCUGsnhtdD1RqWc+qiD2nOnMqiSJrThUAEsHkx",
-	"yriaspRMCp5S8PdDW+W64+KYuWnL6TGscmIuuMxhSuYbqxlevHlLNL00y5izhAGI7rGXzwVjqVuLkeEm",
-	"7wuaYdz+nOVKCodOZQX4LnlOk+lAWPAtkYYh1d4qlrM5o1qhgdVQEid8xbC6v/kNOZXiyvBvKdRA7CEa",
-	"HMIhYvixWR8l6CUbJtDrO+6+PX9xSh4/fvyUdGLkKEfEC0/xbjQQxPT47btTIgWRhZ4XuktKYQEOMaYd",
-	"mOG5CoZGtydIlVTXjAgBUPHHsZHGGTl7/vz53ldPDgkyMNXFYdtYDISmfU1fQ6CrgHeWx2Y41plsK05L",
-	"pmxZEK406VBrTcPiJqH5rCw0RE0rFToOFVe8rzqXUu8C6IHhqHFkkUgoUWbWgmUwIyvXEmRwygagE3sr",
-	"cPUV6cRNIssRQuYDhi4hTobyTZlFSjKpzAUw7DDLIqIQwE4jrzLrl1CdTMEJssTeTFvA08ydzs1oU1uX",
-	"Gw5OKhOkPX7NkGCN2DFJMm4EAKKmZslMQ0rzLCN8IiTsGEwGqjbZMixmlhEB9BZiOGFObOqBIjRN7Ru4",
-	"9a5aeEn+lK/aqFzZRhX5epvCARbDSsAJLM/bETkwLP/LQ3JycXp2RjKmNctVRFI+MdcUooy7ht4PzX+O",
-	"zH/24ginRBFBEyCHqH3VnC94l3RQ/CFxebzj3S75VnAIhoagLvRXmNaCIDCa+/wDdyENPzONWGg6mBOw",
-	"lYFAUhjvXx3EJJdG1DBUQ5EteOCJhRqAGDOzuIINhMwx6AD7OTID+YAfyAew6n0gk5yaXf4wEB/29vb8",
-	"/82DITslH8K9Ih8ALwBZFuRRwnbbLYrQtgg/mjsV4cMVYL5SRjJ6/D5o7bbTkGuTD+Tl2asL8HxNcutc",
-	"+oDtIzf3PCngRVEN3Tpy1kuoTMHMhW+oXYHdV2UE8sFwMqXpeNzYLXK3krWpY4+b4n2Tx654ayjR5yyR",
-	"eVpZE2VHgEIJ+UDgD640MCUzbZAggaSa7gvHgHAUsP3QxkA8r8gyJONKI0PHg2BreqQzjuwW1Qp2rZkw",
-	"13UgGkSfI0LtCZvKDIJ+vvjCkBkp2BdfWEl4ZigkNKtZ2nUzGQiuYAgsJezaSORcZ1AZKgciauQTSFlS",
-	"nqSZpx3Tz5g23Mlw6DdzJk7enhEnSTq8GiBhckyovULlzA3FLoXMI/LDj/FAdFw7j7s9NPoqeylwoSAY",
-	"x9yON+alPqyueeXsmWGqgiWaoAioDLE+ce7miMxoZhgmolQizYdTcCUvmd0gM6LD3sExsizuvrWcxgh1",
-	"dqVwQPD04y6J96dQP/evhnbtQwle/HPGdM4TZVMp9uWcCTrn3SWdZfFAgOwhpO2kE7uFg4XYdYTpOWgz",
-	"jgohNLjZSEFWwJ87MWwVHth9++3v/qIgvQNp5UDEFgbXUMoGiOYYtafYyiFNiM1HhklYBNuRTC0zM+KT",
-	"GdGXT3sHG9FtWXcCXDTe9zduv79fzUYhnXiwM9iBSqsQqDWVGb6/e4y9n158RxKWZabb1ni5EYlFbJGA",
-	"sBb4fLpUUE0RQmg6IGoSMmU0ZbDM8PXBrnPa2o6+2neiXmyHU4a0mPHcBMTrmntfsHx5BDZyM7Y51dMj",
-	"niLzi3EQR2cpm82lZiJZ7v2JLSH3zlw+HwE748rIt8Ki+4ZLDw2hwM2Vs4jkyFctkF+8b4/aK3c9iFoK",
-	"Ta8jCwhutCfL45HbBoEEho8e9nrHeHiQcHE1EEYC2rOtjQqHm2wktSLzSUpG6uEJIx2jf9is/1IF8kLP",
-	"QJg7Z+QPf21d3WhKcgY5hLxcI3LJliALHvb7hu8+6fVQfTF0YyAGGE8kaIZXabCD5HnKDG9zyN/xsTXl",
-	"GAFxYgZiT7CV1DJpjvBrCdTedGYFavQVe4xxripShlepUHh0skAVRtxIxOHyScFAjPV+LxD8gGpfQqwJ",
-	"KL0ZT5hNE8Ro4x0ju+acaZovAyzwUMnFuAtlU+O7vW7PwkcYGrVztPO42+s+xgiKKdgDHJUzf09YU6iD",
-	"UAsjXvV7vQCneJ7LhCkFRCvjV6xLXoP45Chf1+POcCnO0p2jnT8y/Y3tqmbZ7Pd6tjaJdnCwAcX7i01l",
-	"xIN6k83Mll0Hi0BtHjBMsxpPsL+mZvy4MLNT0Awo9U5oTNk5+uFHMLvNzDYc7bzkV0wwcOVryNH9oZy5",
-	"QjuM4xlrF/ltLs35Z4XClAd2PXeAnagP1tf3GB8BJGhgnka8NdxHL2R+iSY2iwWiiM4LpfFMrezJKzuy",
-	"G/fEjGt/nlFe2426N3Jl4W0PD7H0wbLN/DzWbkLIqdfuxLspI05Y8bpaQCUWVJFRwY1Um8tZq2Nvm9vu",
-	"2LtBbrHQ4dCNnOWGH5H/dPLq5UOs/7tQo9209Cg+taQx1uaeUk0NPyfU/upsQJZlGX5Z5DlM8Env8UCU",
-	"boH6rjQf/XMc1C9CjaBvw4DgWN16b8xbj29+6wK58reCXlGO3olN23oOOQY3kDQPLbB2V7/4AqzER198",
-	"UTcMr+h8MneqCzBVzGUkgkHVgDHPjawAmJIYKxIHoYcxGFCsKGvZviCj5UDEPA1/7JIXPANLQSJnIyMC",
-	"gqx08vrZMYnNZQbBlAvrPUTxXst4ILxHMSIjqaeG1lZG0CV/YkvFADKXC2s4mFOlLKtETOOBmNMJe6RI",
-	"HMDjxgC/6/62dVoAMp+RMQ73uPaCkcXAOyXxnkDSuWnaSEb4kJmInNP3BTsGWaNqpEsZhizKfCDgF3Dg",
-	"0tQuCFwj13mE+lCv6Qq95EqfOlgzLysrSIYyXGIHJGGXlXVUzW1od4FCf+jHqLnZMkvi/tr0OeT316SP",
-	"i23XZCXIeV2bASpaq0YDsLWV2tE0z7i5bZWTHZX3AaKJG8Zgbk5lAG3c/6v9v6S6oXd/89b1ruU99P2W",
-	"ThhR/K9re3GV1MuOfF7Ek14QR9CvRA80YHSs9m2YdvV+++I9SDbwaq8ZmMfYbn2oFLD0Hx+Q6cHJhZCb",
-	"Br73RjCYkJkl8gDgfYdteN8fqK/4DK8c3PzKt4Jacy5L8aUW3PKFzEc8TRkEKRz2n978xjspX1GxtKNT",
-	"vxA39/z7FMNJuVFglwEPt/z6x2hnxdgIEAatUAuqzB9whR5AAsCKDqB/j7nukjPkUt4lKUXCopJfWvgh",
-	"cytSwsVAxPjN0CrDiHYE6VtgAM2Za2mNbIgonCtsrWljykfw6FvkqYe9X+vkfyw88iu/Ur3Dm994LfUL",
-	"CEf9B72DJw4YzhxRo7WAY9/GB4D/xqVsPvTt3AdnSas7uvlOOlNXYiTxFOuEEDqShQ5LV1klLS9E5FJr",
-	"QYC3DoXAcwPGo/mciXRPimy56SaewBR+ldcRhvZSrtXIsSjG5yv5K7iSwdED11Viiby7gfYyrbuBW1w5",
-	"X/kJjttcqjtdPIyFV4QajRhHHZGc2dA7zwRrWRNWkBwILHNPMx9cASVegFWWZcAyLtBjBiURl4ZfYzND",
-	"OY6PjaLIiG/I81EXCQ+eBE2XEBhjBY8uObet14ZhfbP4hv9ktFdIbXfBMrZQeYdZsgNtDQSE10MUutFs",
-	"Yx9wGJOO9f801zTbtQTIL491mMRzNA8M7eIf2zJI1p/tcuMK8Ug5j8ZATJgGzwf6t118FNeRdzy42T5S",
-	"PiyJ5sgOAJmAqoEoK+l1yRsHR2BtWpac4jmdUi5IQgVio1xxxVLSOew9jQYCnC+xzfdQQ/u2df+cQ6po",
-	"57Dft2VaRzn84+Sk0jHo2ZRp79hHcQ0EQlqenX5DXh30SKff6/d3I2t3CIK3Lt68dVkqhtjvgjsxBs/O",
-	"0G5dfIRjwG2FSCHkhPBtGTjKIZIC0yhUiSIJDdrDooYKDL9m2wRbxEeEapIxqjS86jAyMCLJHjaagRES",
-	"25nR66H7ZTjOKQQxYDMzqTTpPyG/9S4tF+fuhjIQpGzWHLXMnNLqJNwQElkIDTWWwOdjm9q1o+BiiOE2",
-	"w0s21+E0KmGDwYOxjc8xY+i49CDFryO3RbsIF0LdCLCnkdRTrFI+ZCJVQ8FY6sowHtnJmOFW7ppZALB3",
-	"WQeqLeLpTrir4on7KWieywVavKAjMxd423R4DCYo04iNssGx2BFEENVlGLe2yTQuvGAxXSIs6YQJllMI",
-	"+Yld+Uhv0IJF3m2SH5ByPnfU+I4SBLCxP8h0eW/Cgx+ZZ/nVUG9fpq4ivBx8Gl0iTL9DvzX0/1Ima3I2",
-	"3lI9DWtlYTGuuMYcIR26OsVok5vj35ng1GshOJ1KMc4sHMDhQYsxvaXLTNL0nZQvaT5h+N6TNgugijlC",
-	"FL9iKafvlggIddjvt3nZeoGNrPVcaK6X/6ii4fN6uJjNIwCljTrJKyi34kTG98l9iIvzTOruHHMyHsKQ",
-	"QmcMgufA2QCdqatJbGf29vUfCZ/RCdukgL3NpH77+o8PqYLBGPbtKjSYdEdcUDRntXGEwiw/K12/+M0y",
-	"ByfQtiKCp+jBjR7ulD/AlbooA2m9GOhkQzKj+SVLrYhsNTQ7c8jqkGLMIV1hIEZUpKgwgCYBEERkTgXL",
-	"yIhlcgEKC15NH1dEMT4EIn8GQtAZCJnYvs9CCTJcTOvWS3TT9b747hNcb3U1+d31rSIbPl/oX+mFxnPz",
-	"8Be6DDZvZ1OpRrXX7vDZSjqVmVMxJ1qSgx6EF9rchyCPy04YVD2jMA8ELbVDDOLF21zecuJgyY06FJff",
-	"x6X2BtqV0/V2u2QlArFL3gZJX5CWUs/MomLp0pfAoz8Fzj5GYHiqbdC3IuiENothicJxBWVkIED7UqC4",
-	"IWmy1UCIoksXCYmJPxmkPBRa8dSW07CpcSwdCNQAZY6EjFC0dtsABWsVxzSfMdekU+a72X4g2nMgDntP",
-	"12t1waL86vS6cmxbKXa9BxmAK9Hf7I21Nqy5TyYB85mLdrWFXD/rYJ91sAf3WofJApCq5nJbA/YScoGW",
-	"PGYDT8l9xfG7muhfSUBCtOQNsl7rhmXDWmKbqmQZkkNSjLEWD7rW0IZWFjO3tUVQIcUC5E34zwTLZION",
-	"/IYC0tYIR0tTWuew3/dEWQq22yUnFYaCwKeZFBOWr84MYsSeHoEcC1m3XJExoGkNxDkAr6vQRQgJ0kIu",
-	"kHmqJhKPdQzuwwt//8S9WnT8ExP2tRa7c1/Z/jOx/kysH9yXWk+5fFB36gqy0j1r9BjZUMmW9WEODQoA",
-	"RCDreF1M7Hc1kKZfYdDCCjrWGqW7svCfte9f/t5915zR3RjOsME23VINj9qo2RUAmPX3jJwFyeym2YFY",
-	"k55uK12MqE6mmKgnBemEHe0e+xzxgZhRF5QEPlaHRGZu6dQITZ3aoKxrnFEraXkNfkSTSxTdSlmlM2MU",
-	"TAOx36Q4IkIOhC/gaCEJZnOATeLapmBWc1+PiANVHAiAIAWsRQc6Ck389tnN4KTkTENiAQBAMzEQgKL5",
-	"93/9LzWHcQk00w0XeahlxnJqkRzjCAXEgXCmiJ//rd8jv3XA7eTbC/L87Qm5+H7v68MvySsML/m61+s9",
-	"C3Fwqvt4vBobYONSzOxznsIaRS5ObCAqsC/wtYslcHFjJ2V6JSytw0jF/AcnphrJVsHWnjgU38r5gsgL",
-	"aQE0PNJoFbWAuOjzgaBG97UFPQ2xJ4XQPIOkYIt0HjYOSbo+OOeY0IFwz2FAAuDMmK6NQO56cfVCbQQJ",
-	"2nvDdqOBADQNEPNzicg+zkeP2JO2yCWFQjrM6AJCYTiDPeZYkBMW7rD3lFiTsUN9RxuPy1FGCT5Edx8I",
-	"e32GQuqh11d2I6/rlEEsgLUjiI998v6yspEwQqVsomYNss9OqRqOuY53u+Sw3z8ya1pZc4vhE+5mEPRj",
-	"+qwcfVjrYXBuIZmfYqjMGhPTd1VozV+XGtIE7/iJwweaAFtbSBI+SFQW2lz0zyrLZ5Xl4UWnc5QRaDMq",
-	"TgmK01KCCus93qDKBDA++z+VHz46HceSxAfy/gdWHFen2gIf1PyEDq+BauR4zkMxEEIudo8C9EZX+MPz",
-	"MY22fiDI8C52l/twxoHoCKnbMAuUp8zDjtugLxWTQW3GIkaOgyUtQrB+agWjNADPw1ktKMYRgmHK1mlX",
-	"zuNCFAtjQHFiQy6GAFAEIE8CLG6qSKZ1jucRJmWWMohH7RIPj1tpf0avse0hnbDhVBa5xY8JBBiubDtQ",
-	"rwoXEHciwuokCDsHA+uSw96hr6KNxYkAPsI8CAb8hcybLWvO5XsmXkjE6d6OrZVi/M7NGZnrw7y2Sadc",
-	"5SYziYntDjfvGMyJ6J8aKSb0uoQ5qrfPF3zwZB63FZtyesqt/6yF/+KsZHVXzFWl9ljeqwp+Ewu5X7f4",
-	"iSLx2zcX78gG73scrdrEynUYY1b5CnOJLVGIV9iLubqABzsQ8R+fY9ctOaZRIgC/DFb/5dmrCw/ABW6R",
-	"5NINL1WNjvXXsj5+cGUcDoTPqkAXyXodoaSHd3FIh1T1gfSFpoF+9k5/1h4+aw9tSP6fC2pkkuUG2nev",
-	"bmqLM9lKJ6gJ/BlCKYR5YCimOoi10RIygNb5L17Zrh+QAGAXmzwPdv6f0QHu33WXZQHab/WshKEW7gSu",
-	"O7/bOAlCEQPspOb8kcTmNfqTetAlb6XSiOSDKWKQx2UeRrhgsRyIsh4RWuuNelc/865p1Byvg186/d7B",
-	"7vFAMAA8ycupQzpiFJhY8XaHQRm+EQ5wBAMRpGCWQ2fXNNE2m682rkcQAaxBKDJ0ZCDcQIUVTjDMA0Mm",
-	"uDaj7UHmYs4UWq8zNtYEwjTGAxEY+mMARA/QEMr6UcoBtFeq/KmpXMAUsgzy2LrkxBoASrRyrPcN8+PC",
-	"CLio1HYO+/0NZtNXDj3nIcQYbPwXElzszBpoFuqsCc2ccaW288d+hwHHAo2lQN3u0yC7fnx47ZwrJr9b",
-	"cpdjJHHAqfZ/Msfm31t212dR7FcYKAiXx1OjqPS+hSIP1lnZlplVpS97pu9BCItcSVHpYWrCJPt4PTon",
-	"UtImeLU51dPSsgX/PIzF7YSoOUv4mCcBOQtoXAu7W5A6V45oI1LWj78IGS9Fz892tl/+pr8Rbjduf5Wt",
-	"mrW9c6U5SAw4tyUxJQBEKTOiO96DFwQFIiPAfEA4GKMzgrteapqhGQOw4t/Hu3XUnLcyyzzGB9S7KWHh",
-	"GsEkoRpITDp4IY/KiBYAvDCibx1PktBsQZeKKKZJB9yzFlYckNqgOpBTd5WEkiZ6NxoIMOtNqRrOZM5i",
-	"543AqvJQA8POFerKW/gFksiZLVYwEC8gzsTIRNURKcaUXU8EGXIStRQJO3LNQlUSLKuGOAwIu4EeFMbz",
-	"MBZC2X7BXEhxXuC7wTgNwEK3fTn/kh8oVtro+iIP+BhXZJGb34XrOujOFr6hiGOujyDeCaT7gcgLCBdx",
-	"+UUQ19RFeTCOSGy/79I0jY9IbAVFjJZA47CPpui6gKZovVPTPhn+Gu8C8mej882/4H8KB+GqEpcgKiW6",
-	"iRm6OeWu7qh/OPT5SYEFHBrNDufQ0HPY3FWOdxvUxGPLlMqhmBvgHh0zLOHXCNZp7tD2sIr3iix50OvV",
-	"SlRGvxzHxM15wZoDPEJUx38MvKt/RLEXWYs5tlDuqxK5Vgm7xm9uZ3fMi9aOpKBU0UqGNFTas8BJpBMU",
-	"0isRpyylQ3//GMKBBCuL6hkKheaIGsDVI4/7HUjXjp+WNPiIUNLvHQzEjFGhgkI+FeIO0YWFsJkyIqiP",
-	"hgVURoV2QZI4srJEh7X9yBxDDw3nZAiGEwEkkN9awt4XNIuIlpKMDf1GCJ9ddETxLLPuqMiVxLLhi2EO",
-	"TzU78ojkdDEQKdW0xOLS01wuBKELuuySs7AADOkcXl/vuvqH1g4RAESN2FJaUB+LrQ4GnqMwjmFWKFfe",
-	"DdELzUeMZ3X7VEJlHTuLkVkSn5buEL0yOmIZIP/RXAFPH4jOCnSSIhOJVWaC0Fs8LHohXZkyWwdNTc2W",
-	"UahOWEbdHrtLwtOKOSso2WgL8vyGBBVZBuKCGdFmpUiLlmRGL80INSTjKzpmiP2Npf3M1ShLoWIFIJAE",
-	"lC0iMIPhX7I5siSP9tQ/JBATghGg1mr2CIxzYsLyec5R4qDk4puTvf6TL4/CujAItegX3wiBc5orhGUb",
-	"CCYS6RMZSEdJsphyzYia0wTjP2fMHHsrO9kVnVGtWb57jB0NxOnFd5WOgI+VFXKUh4XK6QILCI2WmmHt",
-	"uQs6Y+SSLSOHa+4nFaGU6x16rvpUimfviy8cjNpAEH+hvvgCi7DoIhflvPq9gxp+OowChFRn1bKlFDFA",
-	"O9zeczbP6BK6zQsWHxMhiWKJuRVmRUuPcXU6zhKtwzkdQZWa8MGgbkp1up4AcEHGGZ9M9ZGtNQFdQ+SS",
-	"GbDZAxtYboVN14LmMwahsw74PoeZYIy1zAkA1R32ngJeGM77nOl8uXcy1iyPdwk3mkoJpTXmgqspiLQc",
-	"PER7EH5tOzNn2RInQ1JMB08MZfGvT2WGAViXbOmvljk6nRjqhyTqKt4dCMNWK8Xt2PVc5to82SXfwyhP",
-	"UWrZe7ecsyPiXy7B+AbCFnSyZRExYtzpOivHM0Y6ZkTssmMoUVupJdBxDBMpTeyKqMSkI+dYQHL32Cb/",
-	"x3VxKrbx3UG3QDZHzAmincNeb9fbiOCAckW+ffdi72vSMfQRgdfM1dnD6zij+SVEfkENyHQXY54OD77u",
-	"DUTHTn1Gl6aP94X0eJDxYCc+Ji9fmC06PX/5AmteMZGq3S55yQUkEJixwoEcCF9HEbJEfxM7mAHcHoij",
-	"MxTO1eEeZVRcQpsq/KGL88JDjnUEoF+rP+KGdckplO9S3hGJgI1iiRTI1kzEGl9QAtBGGX4IoPjkwny0",
-	"IpD5UCum6AsqXnIBNQ2XTJEPoKNACzF8gPdjVwTQBai4hx1fK+tervkSXgeGVL6MrK7yKurUtuZhtTKa",
-	"e0s0V73/+7/+76RXa8EXK/MvQ4xgUNzYHqb1P0A7uAhDDksiZNlLyTxrM3WZLysvuB/ImCZa5mW1ftLB",
-	"R1AUO9jFkol75E0A1miYci4XXXLuJAFX0nMO2icBeMEKhQc0wDKuyNxXuwuhxImuL7iIjkIyqquNVLdj",
-	"1xlrgY3UegjWq+Oqb5YV2aCbWg/Biu12yblcWE5rq30Zfu2lH9MSRrWY9YE4M7wHYb/A/eylQNurWMIt",
-	"ABEBH6zU+y0UI3EXzEMpS/iMZgi1CgXYHF0DIiyASsUH3Sds73G8i6lOxNC1QlGRKofTKKEuyWv62hDU",
-	"MzH20awk45csrMWKKGNYQdavCOCDQKYXFyDEWE4Dxf+q1UoMkV0iLq0yk3ykiLnTnrLCycLXRVgDMi3s",
-	"kqZuCZHUUFc8slxD/N2WJDbraOXwkr2jYmBkH1+El4qAplkfhCF2iJQJefLw0GHv6ZcoCwWl4ywm69wW",
-	"U2xd6xCPR/PzkMiCZwbWGAHGzRqDlIjr2Pn7v/4XBLjxYjaWRreEFcmWzKFSrw24Mq886fWsyI2fQ4yc",
-	"XQdiZRg98DT0VFswVdNUv9eLzBugscBFRtxUFJNsCUKjsFj7FbPao28RapwhEJ8Ue0hN0Il47OFJ6RIk",
-	"oZHEYGpQmdDPElQmfKSgUayBkwfufihHndvSmNbo6VARoMwpLnm3243dvqFN8BpW4Wgg4jgeiN9YWQY7",
-	"DqjufCq1BKlg74B0LGtdZaG7A2GOd+S0JlQoq/zAkf7I04TIURhA8IGtjAQ3z7Po5UHU6z6Jet3eQa8f",
-	"RRuf6D39uvmJfnTQ7Zkn+r0nzU88jvr4xOHBATyBp8f9HsHLT3rR93u93mF/zQMHjx/jA4+jvl3QNTEG",
-	"58X2GVmBxP8nttxZNdeZkwEnzYuBwDIQOtppwhA6tcacd8e6QduMJjhaJYdeN657KL3Udmw+AQLMKrTM",
-	"Eimj9dcG55eS+D1U9SmH6CV3MzppmE8t/WXdgJz033rR3rgXPj4Y+EgRBO1GO04xqjawuhDA+bHOfIok",
-	"0sx5xsVLJiZ6GhqUQxi+T5dKeF7clEEIpg2bOOgSkHJfJaZj5E1Lq3OrzQ/Eig0nQm+UfcmyBo9MbzfM",
-	"uiiCsJgmW8HqQsdgPHAVDLlyeo/tzUdeyTG4m3wAGmrXVeOFUaDbRNKMpMwYFXAY2gXvQKBE4YCZ80L8",
-	"u4Rl/hy48yuEjpRKQ71o4Wz+wWUOPRjFprDpMPGywXmxRUWq9Q4MR2+c45k6A+ARjNgJ/bZSRK1AAJpd",
-	"vX8Gv6v4p3OWMA65i1WCtq5Q6S1knfNCPDSIjBnWelr9OX7m11CEyvoD8PDe6xW778AaG0pTqbfi7CvV",
-	"22PjLrrkvCysMhD10nBODHVWLOW9bKsZHEHdOItTYavF89z7BMOCN11y0hg94SruYKsTbmQU0CjtIFyU",
-	"YqVqTLVagk8Klhni2XAVFo0Joim8ff08jDIaiGcsN7SljmTjKM2fT6PQE1FkldxwNRApS7ghWUF5PQtB",
-	"yIXZSejMFw8ZiINu0MuiMsS1Sd5HJHaTio8Hoh82kcgiwww+72StPf643qPHLOHCBsnU3jgM37AeDLMY",
-	"M0O5tYTALZ8xblq0lifIMK+19aQbxj42x914EKJKZrw1VNjTgDg9ge8BxxX2FtVRZ+D1SpcdD1S8CiqT",
-	"M3TKmKMzoskl2DXByBVg1QzEl+HiVNLlj0gMmJIK1Ccz+a/CZ4MsfOtcovaoROhX8on4OLXdI+jbniFD",
-	"ryqRdT50Dg4ytO6CsuSY+NxQS0vi9czy3MdE/Bp5phvd2qor8PNn9vnLs8+LKjgURnwW4l5jbZCX2kt8",
-	"98AbSwxK+gPEIDTHmPbNfaU1gDVHNlRp3FO7XQIhj1yR95j/yC1NEwmr89FK1TILXOWcZaVFqFNyd7kQ",
-	"CFEu8zCHy3OLMszQWpitHl3WKiujb7W/OY/qYbcDsTY4iGyODTIrWiXRXK0IFlA83S63CzhEDqv5jLlw",
-	"Se/vd6I/QLkBqwVXLE+mZB0cnnWAYFq97bWjGAtIYl0oi3e7xJ0Fu+FlCDFENGjFsjGwCE0vGQiJnoOU",
-	"fL8QN4YJWTx8iyuGlU5ZltroIdMXgNF7mDbrWrNH49g7rAhPKzFBYZQOeAvAaGHkPMMTLRCNY36G29kA",
-	"4ylVYaOWlbupISfGpcTZrbcv2wW8Exu5fwOgHdUvhPh1M//y8ggeFZ5X6h/aMJrPKfufzU0Pr/2mqT+N",
-	"WgaGp/cul19P2Wwbbr5BL7Yd7f/kfXIf71kzHpdBCUguI0KTXCqotYz3zWUs24zmCFTaFcUZwFY2MQ/f",
-	"lWWktiwIaL08LUE4cVyImOIYAGJJlsEKa6R0pGJrBfVVsvLy7NVFZeorjM0FPjhfTjU9zo/ofnLkHlJH",
-	"qK7NZzXhV188sH5Lae203pvCACHFLbWEsNiRUgVUp8ipSOWMYGRyx4cfH/S/JiOu1W55lyb8igmMaFa2",
-	"cLJiSc60RaED91bp0BLZ8thHWUA8CYSag/vViIQ2bHkgplRNEeAPzGmZnBjhbb0Y9s4M9YGQBKDtX0iO",
-	"gr5vcHjCNkWlumM3QE0hwkn8+qHgPgs5D0984G4TioclIDSWVLRMksWnvessZRnTrDV9OWdX8tJGbEFL",
-	"xzZ+qox26x3slgZpC8hiMbwAeGQggtA9p8rl0G5q6RXKGU2k4hkM15GKm1Pl7yAEfPutUe0a2P/h6mrh",
-	"snxOJP9VYP+arbj7NcmZSNVD4vQqC12xBpu3mhweeGigJt9AyLERwO35DyAWY5XJOYtt6NiIKhbG5UON",
-	"AzCwocRy8QxaKr1EsXsjLg3+5XDNcwsuUrkoO+z3do8hG0vnMnOhqIoDpO3P/9YnF89IZ0FzwcUEMy1+",
-	"/rfH8CXa53YjLJlP6EBcTNliSnNNEvhv5+ziDfnq6696e307ne+Z0hPwv4OZ6mCvr8rGI3Kw91hFA9Hf",
-	"66uInO8dqogc7h2gwnTQuyYd9B7tgn2CmYWk6EYsF1ZVPXsKPWYQSRQCFR/XwPPR5JFxr6YMROw7OCJj",
-	"mimEGL7iMkOzH0IvgXHTofMHYFQDwcWVzMB8CGkyY8AmxmDkhVzZHMAFtrW73BYeDUSM+wHmTFFkmUVc",
-	"xi65KhehS04whpccQPhuOauBMAf7mMQ6L0SC2eEOAECEJwKcT4AG0BE0hyB17dbCMAQ4k3CtiGXoUSAf",
-	"QiRXwqLVohJyIQbiz6cEGHla5ExhaEalnEREcjYpMvNOU2WJZtUURrOGj2wKq7wf5JVPgafc1IefbetY",
-	"R1int/61hgjM5xDhZuhHaESPCBdg4b9aG0ZrDsY9RIC+RIdCrXfrX1jfu5b30Pc3ckFmVCzrdzKq4XFU",
-	"CWiECaY6INLrRul+bwYP6IfYAf0KdED/E0MH4H1aZy1mOYcAD638jCOfuiDSkjR+hhS4f7HoWc7H2kkc",
-	"NvPeXWio1wM+LCtm1Ji52Zwq532oKtAodT1kRXfQtk0vlUAD7DeuBeaWbCEiaU4X6DorZR2QUo5C2cEm",
-	"06IRFlkZJHMwgqfdfIEyEWLqWFEI19lHBLnWQPTAW8HApp0xW3Qe4w4huz4zvPu8QRgx4gqMehPzW1sN",
-	"/jMP/MwD/3/MA/mMTti+upr87nqWVRlgQ+5EQyEHQxo+s7GHqBxdkl4M0wHaHRGkYvfMlUzfLClyrpdA",
-	"FUeM5iw/KfR05+iHH805sh3W78NZkINdYInroB5ZEPLRKZVxtdsNUBQLoRrS1l4gEk3Ylrto6IEPghsN",
-	"F1VBk3ZNVhs9E1csV4CoZaHMg5Lc1QT1sL0Q+Xy10T+fuEI8YNQIyldXoSLZounlMgSpCn4U+UCDIO7H",
-	"882kxE2q9GLdayvdNJfYjMq4pBLrpF6Zxbf+PmloGOGVASPYYhh60YLnpERyJnOZ8YSzcFkd6GFDq2/P",
-	"0KoVPm7NWg3sgF8xwZQHYoI/Z0znPHHT4oqkMvF5cZVUONzWHz/+fwEAAP//",
+	"7L1fcxtJli/2VdKcOyGgpwiCENXdImMiLpuSdrgjtTSkunuvBz2oRFUCyGUhE6rMIojpluM69uXuq18c",
+	"4dd77ffdCMeEw2/t97ufwfNJHHlOZlZWoQAWKFLds9ZETIsAqvJ/nr+/c84Pe4mcL6RgQqu94x/2Zoym",
+	"LIc/L5jOV6cTzXLzKWUqyflCcyn2jvcuWSJFqoiWZEm5JmM2kTkjuXmFi2lvL9rL2buC5yzdO9Z5waI9",
+	"lczYnJqm5lzweTHfO+5He3q1YHvHe1xoNmX53vv376O9Bc3pnGk7jLMiv2bnz9bH8HbGSGJ+fKQIT02X",
+	"3Hy9oHq2F+0JOoeG061D+Q85m+wd7/3qoFyFA/xVHXzzzfmzPTOe85TNF1Izkax+z1brAzklScaZ0PvJ",
+	"TComyBVbkQ4l5n3CFaFkKmVKkpnkCesSPaOazOkVM7+YBeMsHQozRKY0UXTCTohijOgZI3LBcmp6eaRI",
+	"0GdvKNxscb/K+QZj3TeDraw7vXnJxFTP9o4PB19GZh/8Z7PqWrPctPmnP57u/490/8/9/ae90fH+9z8c",
+	"RoeDL9//hz2/XUrnXExxcYTSeTFnQjfvEPe/E54yofmEszwiVJGFVJqlZMn1jHCtSF4ItWkXy07uupvn",
+	"vnMY9kUhNp2pvBAPe6Lem/fVQgrF4IR/RdML3H7zKZFC29Wki0XGEzgAB4tcjjM2/80/KjPQH1r2+Abf",
+	"wk6rU31Fs4nM5ywlaiU0vYnIMpdiSswWE5kTSq5pVjAiC614iucRmz0mc/fuUPz95euvI0IJHgmynLGc",
+	"EUpEMR+znIxZJsVURYQKUogrIZeCTDjLUvOKPXFE5kORUzFl5JrLjGoGv74rWL4inhbgvUklU0RITczS",
+	"rMw9eB/tnUkxyXjyUVcPDgpTssgTQ3+UppqRiczH3FBF+BEvdIcikSI5u+ZsyVJCs5zRdBUROhT4k7kC",
+	"stCEkgnXEZAFfBnuBiw8nTNzf9zdBhqjNM8ywsXQTH860127Hi9gGCkTH3tBtLxigmQ0uVKEXZvtU4lc",
+	"MJJxuOlckPhm312dffhNxb09oCLmJNDseZ7L/GMO23VMmOm5R8w0xjJdEUVXikiRrcgQuFP50HCPUJFW",
+	"NtkQi/fR3tdSv5CFSD/2uhvKlPrjWF4SdsOVhpG9oatM0vStlC9pPmUfe4CwouwmYczeDsXya5Y/UiSR",
+	"YsKnRc5SkvE5x9FesvyaJ+wbQa8pz+g4++gDTqmmY6oYSagwKzk2e02TGUuJkMvI0Ec3DZ4ww+XVrNDa",
+	"UMBULoVhHXVJat+LUk3jsk8fBEIXDO2tlK+oWFn+oH6WG/1I+YOeGzLHFZHXLAembTftvqb7jaCFnsmc",
+	"/5l91Fv0iivFxTQqOVvk+ZXMDe2WVywlY0Zzw4rMqtQm/d133+2fFnpmpIyEarYuW8RfwdsxUnUqSAzk",
+	"JCZU65yPC81I5+LFGfn8iyf97nYJui6G4dItcpkwpcx9eS4016uPuYLfsSzbtwIFF4tCI8Me54xegaRb",
+	"ZIzISXhtTuwKqBgomCLmhg2FnEyYSM1VAkmhJLZFxiyH+0aoYrGQuWbpK5Zy+hbW42Nzf7gSjxQ5w173",
+	"zSjM5TAEQ4qaBE9okrCFVj0QP20fZgin8D0VCTs3ywZjT1Nu3qHZm9w0oLkRFCc0U6w+kvJtomc5UzOZ",
+	"peoEVhLGkLGJNiIc0aBxmCExMeWCgUYxoUWmSUfNUC7LMuTSUsCDc6ZnMoWjuAjG8cPemCZXo4RmySiT",
+	"y5GWGcvNCEYLlMHYTZIVil+zV07Rw/NrTgfVe8d7qSwMTY+MRoIPHPb7UZNeiGKk2fKyzzkXowVVajTJ",
+	"aYLL8MPWtlu3/HFmMpNzqRKWUqV5wvVqRLPF7NbTeAoPvY9QGDGbvuN7Riwbyclownd9c05FSrXMG1Tf",
+	"sxkzwt7SKL5kQnlW5PgvHrVrlqc80Sd4FfSM5YpQox+k11zJfAUqlmZzddtYoJ+vjQIG47k5x5cOy/Wl",
+	"eU6NulsI/q5g9nezW3YCLNt51jejXD3sUTBHOWPXLFNWP8dHn4TvDdaNJPhiPlLvCpojo/yA8y8LnXGW",
+	"jxIpr9QofbDJun6ULkAXtyz+QfrKC6F23O9rlvOJ5RjrlKB67H/89bMfjYIcvGJUQJHSPCWd87NvD87O",
+	"vu2SOV0RQ1sJnVIujJ6g1VAIOedGmQD1ukeeWSo86EeEGkmIfHNJnr85JZff7X959Dl5BVSYfNnv958N",
+	"RUIzPrYcJewer1hGxzKHq/pIWfJNFNMKRDUjl4Lh6AFW/L3/Ro7/kSXaLGjJmt7IjCerHTnbc1AgPVMz",
+	"fGki84RFjm+pkmPtzKLWp/rhDGcXxtLi7c1sosXLDUyixVuNLKLFexUGsTs9r1DwBnLdagQVYt3mjQrp",
+	"vROFbUNJd3irRhdbvFmlci1e2IXGGRkX6VyWySVLze1rpniKdNKAiG0mXyBK3jrM96Hm88dwo2pHo+nA",
+	"brw3m69jtJVYbCcE9XNSPYnr97CyZ81bv36Mwgu2dQ+/b6LC7njUfRaKTwU0ZHQHWODm3fE8oN97EvKA",
+	"Xr/fP2w4Y6eCZivUf7dS+yq9RuN6exM+CHr6VoO7eaZ+oKAr+37jihUp18+vnR7Zfg4lc6ipxkYRXlJF",
+	"UilYRFhv2iNxXohekjOqWRpHJAZDcG/CdeUzXSxyeR1+kzMzTJbGvXVvTGRGIBu8dYbQOt0bbbSgm1PT",
+	"UHM7NSpKNdvXfM6ank2Zpjxrph8LmmueFBnNVUS4SLIC9HrqjOE5mJaokqLX6FwKt42a+4QTjPb89bO9",
+	"b9zHl3K64y6ya+cLbcXJgtOyxspqM7AtN431jBZmeGrD4UFbszIUliswiKCZ4dhaFeAOOyEzMKlasjwU",
+	"Sc41yzklk1zOyaIYZ1zNWEqmBU/Nyw3iI02SnKVcA6GJhiJn0yIzP0L/Vri8fP0GLAtkkbOEpQyaws0l",
+	"4xV4cWhmrmxKFixXUgyFdxVnjCpmXZlupddO15wLp+utCwogRey4vWYLC40strrSL8zjZDljaP1ITOMk",
+	"kUWWEmsCdu/CagkSG17A0thsBvQFKxPjkYzRg7CcrYKjPZYyY1RUr83anMGm2nyhAnEYjoIZkWE8YFM8",
+	"IaLIsvoMZtQcFQE+vSVF65SbSDPFN62g0R31gu3yXv24MqPmB/Yj6+vWMzNcGFHKEudQ9AYCMA4suWJ2",
+	"YqGFYH3x2nCLioiJOxWsdtAYek0ap5Izb3nEW6dLq1ki5wyuUyMFVebeGAlkwz6Cr989Y7ZmzqiCOwtq",
+	"YbiVH7xhzfyvHKE7cX6ZovKWVGUPu1RbyW657k1ACTgAlhUFtGsBGuIxiUtpz/A8FPfiaCjiQNQzv9Sl",
+	"PPOdF9QMneJSmO+8aAaN5Mz8cs1GTnQdoQk+IrGX1OAtpnha0GxkpDXzhRXJFLSS5nyi4x6xf7h7aNaL",
+	"UE24mDKlj2GKgi09RkVlcuGp9FDgDaECDtblM28bB09vCZowv1IUqR4pMuiTuVSaGGor9FA4AQE7UVHp",
+	"Mf6OKT2leUpQYoAzrEhHMTYU8d89f0sOrg8PdM5EquJuj5xXbh0pRMaUCm9xxhXYEQhVQ+HPRGSvhXnZ",
+	"m5rh1E4MezdyhiCHfVIb51CAazJy/WADvlXSAfqK3+YMDf2kRru61pghjDTaqCZUFYQG1SAU7u2ZMRJ6",
+	"IM1vODChZA9PBcelFODNn3BEgntiKUS0d7NvRr5/TXPwfZgpwM15xcVLNw38ws0FPr2kydXryQuYDnzx",
+	"u/U5wfdf0eTqrDIv+Pri0s8NP9sJXtr5PbfTgx/Pgznap3GiFzhP+O51OVn4/AxnjLgMc0rRWtVEDZwl",
+	"LAkfNIIikgd/6o2ofotyctgP/neLcfDMCEggqzQQ56XcVzw1J9U/hdqRuaCw6dc0UxHp954QLUm/9/Tp",
+	"01sVp6dPn1ZUpyfNo9K5zF4aUqx2tJVdzthyRnOQ/Uwj6JZVpHN++Zp88eUX/f1B17EUjzUZU8UyLliv",
+	"gYM0KTajGZ/OWhoa7BuZXLZ8AfaftXx4SXPBxXSXAblX2o6oxjPt8Krt1AZSmXVUWbRGPolbdVFkjZyy",
+	"pN9G+Oj4j0wTmvUicpZx0SNnMzbvkcEXpHP49MvDLjl6+rh7TOLD/YGKhyD1IYhrzFZSpOSnfxkYVtOx",
+	"4+6emEcfqxhchf6Zx+Ty2QmJB6YRopdyKBIpFEsKQyjcY55XQYtw3k5IfLF/hO+Q4JXIND8UdCyvGfkN",
+	"PO98uiD2AUpsSf76X/6XAfZ8tH+oYjKRRU7We0bOCV0fhl0f9m9iopmovGI9mfA0oNgslzWMt8o/zJLt",
+	"RXtmOfaivQF+MtPZi/bMeMxv/ZuWlNxs6iG2YP567P4a+O8ujtxfR4f+OdO+ORlFrprU+NcL+q5g5Iqt",
+	"FNOGkyqZk465xp8fFXl5tReGcogpWNsCzOeTw0ErzOdo//vf/IcmmRaQuLv6pwnaNJDx98h3TjnJGTWD",
+	"VFUNyz5MzSHPjKyVSDaZ8IQb0d4IYlU+rGJUuRJ5TXNuJMkY/ItsvtCryPQzFHijFZo8BDOtm27gOUP2",
+	"IhJbLQQkuXhilLfItgvuTVDlhsKocnBk6sQRycSI6kYdwk63EKB9uaerLGObfYWW9rS135LAbLBVF3LP",
+	"mXdgTrtZ6pus9OHOrE/8XJC5TFm2z94VaC2WecryY2I4Ds3JH8f9iIwPv4/sFyOZ8ykX5I/w3buCpkYa",
+	"SNxzERkPvq94i9s5Bazt4HHT8DcLAWcNrN9s4hiF8dR8dmqgFwla2bZNv+6oNvXrfiNzqnN+4zoO1zoi",
+	"6qd/7fzD//t//ufv/qH71//5//7p/4pILpfKiE3Bc7jelSW7t7XbvrBo1Nx+HSzulSp/40VKlJY73Yx0",
+	"st6Dk1BJyqY5Y8qs4CRnLJXziAjDY8giUNgDhw/CYkbXLFeN4iqEGwTeV3weyYpX/8zcAMOLRl54/uCw",
+	"1+/1mw221hWL/W27hs/9g++jvUlGp6rJgJVoRegY4D44EIuaRoOLkM7e0hp38YLrFxmdNt3/GaPXnCmN",
+	"WtdtDYFOczmjOZhjeNoOKh+FyP9GU5n34FWX4hlXmotE4/1VTqWYoB6xLQDFGkNuXRkrp5vbAApys/US",
+	"fhrl7JpvPlRWwXYPNd8Pw9srQz9shIUYknvbyF/BQ++jPdF0fSxXLheMdOCQGpVICuZ08EKACn7rYi4k",
+	"b+QP6N33mAkrDURuujInrteITHNZLFhKxitLjrlAPqp4yVnaQ4nM0r4xw2o61RWXbx3hyKczEGVCKms4",
+	"gWa5UWRhMJ0CdVnrMK1wt+4d7a0QHHHbvC7gofeBNUKlW+ijX/qUXXPrz+2sDm66kROa//t/XZLfEkGW",
+	"MG+iEpqxu04APAK3zgCfss+buzCSQOJplr2e7B3/sQ3J+L4ugb7JmYKdEoQK4gmuv29RcOE4+ulyZo8h",
+	"mnfR0z5qT7RqQmpD+JxbfHxgA5sHr93a2f5Q5q001UW7W3KJjwbO1uo0vjn75hVJZKlWlSabiknHG3DW",
+	"CKSTd0atKNe39mlPwSw7u/U9+9j7aA8P8yihIuVGuNhImvwTjxRRicyZta3GtNAS1Q7EcZMJvzEEGhoG",
+	"72bGrxjpgA5iTh2aPM0SBeLAhpe7rckYUqMzN8omWubmKsU1E802uN/Jpe0cgZlwyVMrvghz0jKujFwj",
+	"iSrm5h/hYj3jgM40Czd+Vu3v8Hf+lfWL/NYFoDFSmDF1wIAgGLFhl2B2ttuDtxgA2sCmwtGMwMqNFP5e",
+	"R2X7TmZSKqaA/OsZU6WuGxGaKVk66CznxzNABRhDTggdA72yvp/yIFpNeczwPKa1Wfnp3vu8gqFSdYWM",
+	"DTr/M8vlaEZFmtlNXj9c5pEqMVAYUGHjH8mS5YxcsYW2rulcpkVirhEXEy64Zu58nqBW79ZFMEJzqdjt",
+	"wAEM2EQC7qW1ddksqkaZOrXb0j4nW4Wnunn1m2iME9mb7mR9GWua9To3qeiQVXYPOlHVg2E68H6RQOn1",
+	"opm3CHjJ1wkcJX31XCOqmDsqyl5gjVhTphrtnxDXLV5I63zdBWizwTs+l+gyg0MKelB7ZXJMFW+EX6ys",
+	"6xoFBBXgULkgS5mnqpH43ck04wxst3PmYj6n+QpVyAXPmdqsb3OjBdFrpEgJM2J0eaMfKWL9FIROWc1H",
+	"IAXbuIAbZL5ANaNKj0KwWnu69G34VjNpyii40Ct4RKoNaXHsieq46kVv8nSs2flhB9xpiBB0FKxw07SC",
+	"vd54zl9ytSua7M4HaAfbXu0o1QUIwW70KNlgjUYrtZP8zKNkUR4hq0OY1YKve7cfmaatMHsQjqLNWqNu",
+	"t5uZ+rVga8pomZkg5XQqpNI8USeEBh8BhuWPGNe10FvSERLNQTI3rDyXUoNYMKbJ1X7gdbYPoDe0D484",
+	"zzOqCNuCsAoImW+0YgYiuJkU9It81us8d9Tokrpvt5XpE/CsXGln/rxDx84s0IzlQb3tjk17Q1ajmSmn",
+	"07uO2aMIYC+b4daH/f5Pf+nUNhXslZWl7h5UPt5ZH0eZ4c7zQemt5b4H6OZR2HNzJH62Iu4FhVHt8MId",
+	"Z4ry1iZjTt3UAerPCenjfXZH7T5AV3i26vcmWEo/VH+Ig23asIbBwVy7XdEagWg8h8GF2khQL73FoG5L",
+	"Apwn5L7okdMS7AR+tAUG8Y7Q9hOfeNQvwCUNpesF7tfq04bzWsQQDBsxz21hNOWY32CrF67R4KfTsv3g",
+	"2wvflZ+8ZY+7QsErTsF78PRVvCrt2ptQnrF0VDr81lHhpekJAznRXcDRH7ugSpFOicqSuQeIVe0Uaz3X",
+	"BYl7s/fvZmu/T2P5LbFAt9PMXS2IdzfSrVvZ7mgms1p9SxPCx1O7Q/22QUWtnvstKmsTxXvGs6LZVuZ+",
+	"IROIQoAURNwomhC0yYVVdknHIxZ/a8khYnD+n/+VpLaJ7gk5RB6Dxp7enaMyW8Ddnoc+xh1k4tsM570G",
+	"KIQNP/mggJLtLiMnnCOGxLrMLA9TFaq0A7neLPnlDNNIsKYowQ08vnyn6YCteZyomLIRRsFAJNRtinX5",
+	"aMNPFb9Jq+x24QzC9wMDke2xNtYgGqf5KvmD104j27Al7SPCKnu1rt+5k2M5HnQQkcP9MVWY9mLNp3hi",
+	"s1g1vVm/vpVLud1P23hsti5gkB5uhyUsL1Ira0Btuyp+pCd2TptjcerHuJ2l5y270Q0WHrS6MYJZ4TCM",
+	"PufiilBNxlLPCBOpOiFuFUuLeiaXTCFofsanM/O3RQDQnNlXvVRfuUv3M17nPgcQWtlRbcfrF6tp7x3y",
+	"ogEaaviPhXnQOshDhSgPEqdgUxAWpDFCJhofIzQUzzFkjCFzCbEuVJAZzSZlsKCmmXMA29iBKu4j7p6Q",
+	"eMKWI3/51Ggi85EaxMckPjxQfxqgNwZcNuj0GgrsGYY9o8rGCvjFg2FUTJQQFlL2EFehm42TNHJA07Ba",
+	"KhF2+Z/ZpgG+8p1r2P74gi0vfPMvZH45ALXhd4xmerbjXS0FPjcreYUHJF21HDL2+/r3e24IF/hy/fTZ",
+	"rpoOXUBPm+D6NoyUiiBAJXJO38huV+QwczlRdL5AzEAAQ/38qBUK9ft6EtJ+9Pnj94241DIF6ZucmYN/",
+	"Z4oZaGDt2c4t3gjMjWP1Yus7MCqwuRAnRMhlnZO0k5Kq+MWtWkL5pNEsYE/ac4VySS/hzXoCnlsYQz2I",
+	"14v3bhyNx9BiKncUWAPYpkNllsiK0GiGKOR4LAuRhvGbEYkzubSYYsM/Yo8SbrC/4tvNdsjNkQntrZBt",
+	"EnZsimbY0TgFAQs2iMFJsW5+TRv0kmqGx6FdzrK7IKbxgADvcLGRGKVsbgQEwPFrx/p3vTx3uudpoBlu",
+	"e8trkK0MH3URNsgLvB0r5R5s1LvLe1a22LiRJSxzt7v2dhbKD04hy2g+hchW02KTELF+je7iSFBuwNUx",
+	"/ff/uqyI6JhcAGUKSFhpH6BZ5nCG7ve7JCapm3JxVI2rfJeYrmdMswT9miIl7woKx8S6OtFTHyHmu460",
+	"UpBqdaFJnORc84RmI7BAxKRDPfKiuy3EuLZFrpVke0Df+eVrcnj45dHj/QFx77gk0s5LqOvBfjej5K4u",
+	"qMrk7jIctxYRWd15FJvSX/xOLk0fKwS4uMUFR99ytjIr3tuQTYPZKLLmLADhrKySSfAlM0ycn1nVu8b2",
+	"Z7LBlXh+9jvyhwHxg8PzF5HHvcc//eXf/ung8s6dvdvYWdOJj8hh/4M6VHw6p83imj8Z//ZPcK/c4cAr",
+	"VYVlxdDOCFACRnxoGfsRvNVe5bw0L30F7zRDIf7tnyweTjBD5BCF1q3jyIIgBYhg2YRL7CxnPJlhi/aO",
+	"IGD48lm31yA5GG5jtnHtPkab6Mb6Id+aT+CVN/nvJGK41AK35m+pZ6krxYMdksBYdvv+tjijNl7y2+Nn",
+	"ICremj6NfGRf2UF5sH2MV62TBdlXqr1vIGFBc2tG3BqGzwx/yq9Zc1NzejOCYzqiUzaayaIJTP21Z2P2",
+	"RKfSQjAWPL8rvmHHSAqb7mLdlm3dmjiyERejicO7rSsN7V1Xd3HPhGhFuWgFLfJvv7bPb0glEjhzwq25",
+	"DTPpRlHDJfrbF4XXePNaNh+TOjaxPPGbicwdUFpo82hPKSw1uy1VlGt281jvaOC4A11EFe8DyWLFZHCL",
+	"KblKMttxydDI8f26KI2xmv3e0ye9BhJ1u8W3JSkyQl8mxdT6BEOHgisDojRdlSDSEyIkijb34A788osv",
+	"j27NOHwnutZegd1C8JoTRVGAGRgFEtcHM9MtKVQEQrzInK7ImIVhOs6M5vNOwmHvNieL+pmIpb02zRSz",
+	"iTD669V46d2+1WoKYHxZTFbkt2TcJ78h48Of/nJzQuJK4Jn93f7ko6vjoai+Z/4d/PSXm5/+FVOHfHn0",
+	"+ef7g1qmHWwZ4OJBF3vRnm+3pcEa5vTStRZ8eu1ahO/+UDb7Ptp7DQn1mwCp380kya3noLRPn4C52p9R",
+	"V35rhaEYkEot/o9xzUbdtjxW1Uj9H8FKfTj4otlM/aHG6b9Ni+82O2+4IiWi8G72+vsB4G/LDIRm5Gpi",
+	"AKMmtQ38B+bRHgKEz98JCISv7o76wRSTdzkpF/Bmk/6zAZTUBPYe1UyXFgFUWYj65Gqyo5vBLTjxtYHv",
+	"fBO32cGqwGsUBQxRSqsAorV0jcDbMF1jCRW3+hZej7vaqALLdYuTuiG9QAxpekbgk48jEkM+n/Iju9E5",
+	"XWD9NsjGB09nEjPvuU/vzE+CTQGHCn/LkZmrkRR8U4WwzoeR8+PEvaG4hPQQzi9gd7ok5QnN8xW0BwsJ",
+	"XpyhiIXUI2dKMosUgx+bxEjbcPvj7m1pSJsBjWuP8cBxtVVmcs8F74xKbGOjJbH0aRmdWY415cKHasYT",
+	"zrKM5c2BmHNGxWhH0LazjDfp21DaT06Id64H8XwUAcnp7ckKain11h3Oi0Uub/jctK8qAdONXj1XPcEd",
+	"9iCWyVwopjQ0dR9gbp42ILmbMwReA0zbRf/5Ra3vSXBH10/EdgpmmfRuFOxvyZe13YPlqjSto9NfnJGn",
+	"R0++ILb6E0Ebo1r3b2wy4WPebrChQmVMm1uT+9DiCCj0gkmLclhP77Ih/v+FBMAozbgtlhXZik0Npa9s",
+	"BuGWDBmm+sK83Ei2RBl7s7GiFVlQzDXSAC+EB6wQs60kVvwP+1bI3T833EBL8q6Q2qZXRoAsZgJ/0u9v",
+	"TKDbFHRg+vnd27dvCD4A6Qcq+LsnlVyLR/3GtCSa66a0e5czmWuiEPLvqIw7P6aVxqFqW32sjpf55uLc",
+	"aR4r5yENG3O0u8jFMfCsK8YWLD+2zxzbExJbUhooI9uFKfjVzTHARW8xslcOzvEPLS/IW5cbmbtCb72N",
+	"gN4mSJF5v3bkjwklf3/5+mvyBl8yXE9i8i2ZriISHxitUx0Mi37/cSLgH2Y/JTIr5vareCjM3Ty7/BZc",
+	"bjE+we2vx/Z1Omf2cbjJtCw3iwLB9nV289q6shcud8sOrt/vZH5lVgQEoqgM2LPoRrsgDuCINj0jGVkO",
+	"VBMsc1uUDuNfqzv7ITiVe8eeNC4fpok3uk1TScVFLtH0TLOYLGc8C81EFSvSCYkx5TwKgRJQQppwFSRR",
+	"NuQW4ZOl3xGDCVxUcQlMOSGx4QczlqXxUNSEeGARGEkU2RYiUogJ1+illTlRxYLliqXWJ0yHolW3PTcN",
+	"h7X1eeZ5MqvaaYK1wdgvO/m9aM+NvG06S+zxTaVB++VF2K797jvfPOxgKXeug7KDTNcOZd2x9j6nJVi5",
+	"bpxRcUUSmefoO+zukhG4isneX/9t7XhfhNJLPe6tFHtdYo8PSknll2g3SwsMssjuVqtki+Vkl2CNhBZN",
+	"WxuUN4GsnWgE6tG0UsoEAgP95/D8x0C08XsfedKs3LQAEN0OJdnRNnPFscizu2rWu2SZLRslM0O5218v",
+	"v4tnvqHgSyB+Z65Jw1DN0slCgVFkBydJhZhuSPkChcyR7Fg+MoGtsKVqGlIo3BKRgsTKj7T9+Jw1x+6L",
+	"31Yu9OdHjSkcd4yxg0M52qDKK9YATXkj7f126fEYS08IF2Z1IJmN0RAwZgSKvVRI1OZxt7ORmRHZjBRw",
+	"/tzlqy/y2vkIA3j8iobzD+L0thriKjetmVub5l8wln6EZBc7FuoJaWVTOkuqRnOZb3DNb82E8YYqRagi",
+	"seKQgdgmfqrkxABojgMSb99nO6964gs/wFtsmxc+196OcE7rbUtZYvPiLXwAYMLqwg2Ub0q3hABuBpUE",
+	"tZ98Ie0PrECV8DY5VHFlnrmnK4RrE6RkHaSyWxYTP7bgEt4SNlcbZsBmrKDqQ+Jb8xfT4Kl/GT9f2Cbe",
+	"l1/cxSt1H4v/obFXQSSYlq7WiPe4YwCGdRiUKb57m/eqcVeKjH3LZVamMtqBulmiusGcYWFLXFzL7Nro",
+	"A4a78Mbkj2342lpkHm70hnpXjlgd7g8UsXUBImKOtv8prCDT7GLPbRGDW5ySvt5BperS9gsETftJBCWI",
+	"ykVt3i6xc6b6vBCGjJdpqO8hp8OdvJBtMmi7hPK7Js2+A/RvIZVmKdmQwnPHnFMXhcA6Ag0n1c1gg+tV",
+	"G2Zk3qksgBudCNOJ/CNS2kRdt67YIF5A739/+fprqMdgP59dfgs08q4pLNrby0v/z67v7JD0Qm6ET3wA",
+	"z9sdY3BRBOCChgy1WFe2dXMun+6tuLrdclFU8kb4lfPndDPEMJxDuThRmdNsuwRXCKcHfsyUcevGGeSf",
+	"C5a7GM/2Fo0tt7ztTWp0urVewFa1Su4h+vOBc7rsCuLYHgy2lixlw+rdFVx6Bwb5MallSPy2veUxZh9C",
+	"2Txstm7R20ru1i+h0bhX4SUEM7Uv2LwTfWwY05Pd4Fyedm6hlOWENh4vjzN6YOq2K6IpRIU0ytI7WJjW",
+	"BFlrYmmJUSpZ5P1ZdtONyY0ON7H+FlCRDRa0iv9/l/T1t3PwpvDWYHZbl/NOEcuf4oVxFSv3Y1f9yiK3",
+	"HBqLpb5kdamqYxrV5X2rYVuBoreUqWxEFVX9fVN6jeV1IIYQAWaA+Ym7dw5u3T3fX1W1a1bULPX6oIoa",
+	"3maxDsIiCfVVkbfSm7freMgPSqjWklRtgDZCrXqPqCLwlFGE4zevL7FSLgqeBz/w9P1B+aTCQnEAM3Sw",
+	"w055LBpK23XBsbUGShwKeM3WlMrZJIi/RBfjiS1RXOLCygrjd4QvNpmAzcV+pAhPI0KVzQwJSZgmjKWQ",
+	"AUYR3tavcU9wyHvHM25Xkav+9Qfxat0HX7xnd9caGPMu0dWh8/MW8xUuivU3ypwgUsOsOCYNt620N2zd",
+	"Q4maCGEUJK78tF520maI8eBkyBLDRctSFDv73arSdSjxtMOT7oJUrV+/ELtadTLWrknD7u8WghmKFn+L",
+	"qsG2+9UYE7OTNoC9q7sp5rvqsPX0Pg8WAHSZSIROOrttXgh1vMy5DoI5js0p97af4zJDdDrnoqV5Fzq6",
+	"KIT6zraNX2AHF9g+fAXmF+UTRsN3p9iRGW+Zi6GRf/7bPzkyg0ksOheDrqvF/fL1M/LbMmMGkJCXr/9A",
+	"flvmtBiKGFBOI5XGx9DM5bPSa+pSC2pfKQCK63Qg+kHPpGJD4Uv1eczghOvuCeS18jn7sHl18Nf/8r9h",
+	"PhwPvaIaa+ZaoKGQYh/6cBQjcoMy/5QVr/jcCG7Kgg077F1Bs6HDbQYJJFBsLsTSVtLrnlSrSB3XX4iw",
+	"2DOuAg3zcBrSaEdw4govgQhlI0K7x6RcywCflxcCQmzqGQUNC4IciAgzK4FdLDPrurZ+Vaid6X8v2nMd",
+	"QkqMyvO1Oj0tD60/bafYfvnFV6any7Ty3UvoEjM6VX9xRf8uET7kreX3GGx3hyxO25LuPoTloOSrtyXj",
+	"30CsKka0j2BAWFvUW9yrwcPh8n5Ua8KHLjI4+ddd1TljRLMbHQRcQOh8gk5lIy3mNNEs97mvNB1jbWnU",
+	"XAy1TWieczo1FEYXuajF/A4cX9sQ9Pun4fCm3983//3S/Ocr858z85/n5svDF8PhzRcvNpROfyuv2F2d",
+	"OnewBLTXCjZmLlGG8+0gHQEnbxCLwI/czC0VS3Kme+RyJpeCAO8wZ+WEcE0SKqzeDIVrwFDUUr7GHiMX",
+	"am8ncmvid9iiu8lXbhHbWVXCO9eAZpGYIoxqsuQZRBiX/vgTomCtrGqOZhOLRaRFyjXROeVZ70M2sJT0",
+	"jraJeaCdvCuY/bmpmFZ1AxrXPGfiPtnQmCpm7vytST1Mv1+5h+8I07itNHWrMtIWFVNWkxaysSgpxKJp",
+	"Sa4YW5gdn3ORBrnwuSLazIl0KAlw/8QtSORARq60G0Ub2o51PHx4TKsFfuOfrmT1b3UcsYFNVZp1Xoik",
+	"uerV27xgpXl2yUUql2TGsjRIcX0Y9ft9tyKYDS3DBN4yS43giw9A5j6zxs2gp2uHBtvFORiCyG51dTQX",
+	"xig3IUjR709+UMUxGGC4ZO6M3aJxVu/IBwDePgi8NjeLfTdrlGgq2RDtNVXFRmW3qSZ2R0ANrsPuhqAq",
+	"f8PumpCQZRjOsjnu2/XgrzAklISat7dzRFg/mDSWAi13Jux74/6/CS+8Va1MZ5mEEMNNfgF/RAm1dGki",
+	"s0wuVYjRco2AycnIbGvFTMM6L5lsqzZVB35pe6l+ex70Wf0l0JXWfrr0o6n+8FKiYhUQrY+AnNg1aIUZ",
+	"it9MNF0yJm0DOu0h829gnTSunINr4qGjLswtpKZzjgmd4GG1ISsTF6OQW68/cDe4THMqWPDvuN16ZKex",
+	"Lf+GYIaT2iA8qOAoJPEH9a5Ovd0zslR5THP0rXIIZ/+sgxIHe9YaKlKD6W5lUKHRumKjdhlAfehxCTwq",
+	"T2H1DFTm2kSP4BiHl6MooOdQR+vvP6X7k9P9F9//8OX7/fDj0S4fDwfNGZy+aXQxnBJwMoBFKpGpD+ue",
+	"Tw9eQjYT++8fF4v59/VMU48H23TO/2H/f/r+h8Po8YbxVOvh7xhjDMXssUAHmvVcTWkyKQT6QWtpksnl",
+	"s2NyZQTPeCGXLI+joVCdmy75LUn6P/1lTm86NxG5Gc256P4pOcRoKPiIAaxzmmUVsyK6RIeiYiI4sV3Y",
+	"7GIqjUmnMVVtN+ye/IYkhz/95QbtcjVppN829ephywdd/N923uuitPp70HTTof62pAi1AEqIUbBJAcWK",
+	"lFX4oKyZI00Wob/R3VwpsUiVq47WkpPa0b3BF+2nF/A+jr1a23nXAt6tC13sXmn2YdETbbhtmTOhAYU1",
+	"mbCciYQ1l4L99TNwCvR/+ktnIguBVWCtzb97YP+4IwuCBlvXCm6boop9aIaq3UNv29YP/715fntxX6Mv",
+	"Ne+EYbE//vrZj4Qa6ZWlrnY6rMMjZSveVNIhtzid5iJuKhySs0Res3zlxvMB1Xk/GF9QhuisSYs2JwEs",
+	"3SPlnC4kkXOmLPynla0ukCAstbzdbOwOcW2x1u5VuLN+0f3FDCKJdnZVh+fr4yH1rTvUB5c3Koxzwyxc",
+	"bjT7ZA1sMWYQN2y4KSJ5GhLGBvpyvYR/+8L9tQ2vFc2vT+cWc8TanV5nmVxwzWkWk8752bcItEqk0FwU",
+	"XExj0jkz34IAYelcOKKQU9qG8BTa99uzTN/kuW+mcmCCJmvzukP+6bscpHDa7S001b29RTOodrHD1t4x",
+	"8mBrISFn1QlLCe1UaGsbPPRr64uv5aLDtEKkH3nzvMcdGUXhwwq+tir7+sGM8qP6DduQfcshNvhvMP/y",
+	"GRUpT11WjB1OUHrNFdsAi4ThMwczSGZSqk2RsGiX29qMRWX43LHrjczpTaWW4WhDwaO3bUoukXqpx0Kk",
+	"zOYVTdxqhYKexV8bPaJUIu5if5W6UXhYEVp2jFDvK75YoDaDbBrKNZ0QBsUipJ6xfMlVc/I1VcxHdKxG",
+	"zQWhfvz1xfMf3aoYiXa/LIjvCYNaE3ObRnfHVbiHStphkvBguhvPiT+FkT/Wdjc23xs7wOr6vWRU6X20",
+	"wSp7nFSPxIcHN3/q957E5K//+f8wn1ZQ5BNPG+QxdI6p8YrQoQBjAYobddQlWBCtdaFzms0ZTylhmtCs",
+	"F5G/7w3F2SyXc6rlNO+Rr8gXXxyRzqDfH3TJ4PBJt1dWGMWxmQ4PD1TnpvvTvyIEig7Ful0jMFrc/Ck5",
+	"dMXAaJJLpVzBWC1JJqcd+DQUl8+6PlrBfF2ZRjeyCT7MfH3tMbkU5PLZCWYZMwMpj5WcOGICnic4eJg2",
+	"xttG7I21nl5XCXUo4rXE9L06lMkXNatRLMR2BYcb81kGlhlVzAFpNVYyKyC/VYYpuDCRpb1IQ7HxJhE6",
+	"l+CQlArS9COeVsi1WrNDsbXYbI9gtW9UOBH/r6Bwmx++Ilz45RiVX8cR5gP2t9kqaRN+A0HsqgSuVUFc",
+	"QoIZ0h5u/Mt+HsC/K//9yn7G7xX8CxiwdkKiv3JfY5f+87m4vnyX63+ofbf2edDw0n+qfbf2ee2lyhcA",
+	"Mfs+pAevy7oHO4X5+Kq9JUDQntTIHnJftYFnWVOID+ptvlZX2+pYIBAFN6FFyfbaC1Gl663UslLl4f6W",
+	"6ARKOrMsJRmbaCILTTS9gqALr2Y/6ILVgFcMgKAefNpIpARjqcI0YZYca0nGbBPJ61DwB+YwU3Mn3VtG",
+	"4sA3JxmdTlnajYYCHsZRVKGZJA5mfUywbVwrYPbm4UeKXD4bCjBIEFcF5vExoYYyW4zsUpZNGnJrxKWU",
+	"TXNmxmzeZSyVc9IxG/D0Cfm1LUquFlQoMwUE4QDVNLv1Rd9G42wqCD9oLAhfO2jgGU6KnOvVJUiNWHKW",
+	"0ZzlpwVWl65pv+ZrmfM/A0c6Jl/Bs6iHJAAesplOewSgPuqYxCXaOo4Aievh1pCzvQK4hozv6ZyL+IQo",
+	"xmy+YgiU5lI8UiS+2Xc3ax8hPxYki2KvkXBhSKUQN9N6sff+PTgDJ3J9SkFOXIwGVJV0kYUAhpTRscyt",
+	"aTzQ7T1Ligx7V0NBKz+vpTaI0LBuLppn9JUa5GXpJCPRZDxZQewXUQx8E1aqj1DIgaYissgkVum8ZrkK",
+	"Q8wUnK1CXAm5NHTxD6cu/ZZpkooKmmsohuKzz5Ah4ia5yC+qUbroffYZKQs2GXGjLPZXzgUcLRM+Nfov",
+	"VMRkOacu5sVoD5a+KJLmdCnwfiyKccbVjKVkWvCUAj4PMeJ+3XFxzNy01X4xmGdqpANzzwXyXcuIL1+/",
+	"gXs6FIucJQxKN5x4m5UhJm4tQJx6V9AMo0UXLFdSuJyo1qjVI89pMhsKm/JVpGEgn5ctc7ZgVCvUergg",
+	"sTNIxLC6v/oVOZPi2ui0Uqih2MccxEiIMejNrI8S9IqNEuj1LXffXrw4I48fP35KOjHqB8fEGxRiQ8KI",
+	"6fGbt2fECLyFXhS6R0oFGg4xBrua4QHEP2fkm2/OnxEUIlTPjAjT7uOPEy64ZuT8+fPn+188OSKojqge",
+	"DttiJ7Egwtf0awivEvDO6sQMx4K/MLtPKpmy9fK40qRDrYcJq/6FLqWyiCk1rVSEQChF6LFluZS6C6m2",
+	"jH4UO/GYEmVmLVgGM7K2HoJET9mwR2JvBa6+Ip24ibUeY8knqNxAiLMr+KbMIiWZNKokNVw2yyKiMB5B",
+	"o6Br1i+hOpkBaGGFvZm2QCA2dzo3o00VLgQcnFQmSHv8miHBGrMTkmTc8FmiZmbJTENK8ywjfCok7BhM",
+	"BirC2vqEZpYRgZyBxIjRObEBr4rQNLVv4NbDCTQKlCd/ytfdV67wvoqc6gJkCcNuzErACSzP2zE5NGz2",
+	"8yNyenl2fk4ypjXLVURSPjXXFGLbeobej8x/js1/9uMIp0QxbzuoDtS+as4XvEs6KGWQuDzecbdHvhEc",
+	"QvAAhI34AtNaANqmuY96dRfS8DPTiE2IDHMCtjIUSArjg+vDmOTSKCooguzAA09tgivAhDPg+kPhYkCw",
+	"n2MzkB/xA/kRJJYfyTSnZpd/HIof9/f3/f/NgyE7JT+Ge0V+hCxVyLIgewdst92iCP1t8KO5UxE+XEkH",
+	"XSpYnfOzbw/Akm07Dbk2+ZG8PH91CUiVaW7BID9i+8jNPU8KeFFUq6kSOY8eyOiM2bCfWu017L4qI5Af",
+	"DSdTmk4mjd0idytZmxF3bbY+jyU6ITaIKbTP5CyReVpZE2VHgEIJ+ZHAH1xpYEpm2iCsAkk13ReOAeEo",
+	"YPuhjaF4XpFlSMaVRoaOB8HWpEvnHNktqpXsRjNhrutQNIg+x4TaE+bqo3/2mSEzUrDPPrMa7xzsAqZZ",
+	"zdKem8lQcAVDYClhN0Y05xptBDkQUSOfQKC88iTNPO2Yfsa04U6GQ79eMHH65pw4SdJlSQQSBgFVeIXK",
+	"mRuKXQqZx+SP38dD0XHtPO710RGq7KXAhQIThrkdr81LA1hd88r5M8NUBUu0tXwqQ6xPHTwsInOaGYaJ",
+	"udGR5sMpuJZXzG6QGdFR//AEWRZ331pOY4Q6u1I4IHj6cY/EBzNGMz37s6FdB+YcrvDPOdM5T5QN4D2Q",
+	"CybogvdWdJ7FQwGyh5C2k07sFg4WousI03OwhTgqhAVpzEYKslZypBPDVuGBPbDf/uYfFQQVI60citgW",
+	"XzCUsqEwSIy2l9jKIU11Qo4Nk7B1E8YytczMiE9mRJ8/7R9uranAelPgovGBv3EHg4NqDDTpxMO94V5s",
+	"ZgrA6pnM8P3uCfZ+dvktSViWmW5bV2mISCxim39yTA27XsxWCiq1A+S1A6ImITNGUwbLDF8fdh3Iynb0",
+	"xYET9WI7nBKCasZzW/kH19y7guWrY1AszdgWVM+OeYrML8ZBHJ+nbL6Qmolktf97toK4Q7SlWzlpzpWR",
+	"b4VVcsOlh4ZQ4ObK2bdz5Ks2fXR8YI/aK3c9iFoJTW8iW4bGaE+WxyO3DYB/ho8e9fsneHiQcHE1FEYC",
+	"2retjQtXrcNIakXmvQZG6uEJMwq6zzUVGNCc0DMU5s4Z+cNfW3wighBNyFzByzUiV2wFsuDRYGD47pN+",
+	"H9UXQzeGYoj4X0EzvErDPSTPM2Z4m6s3E59Yw7wREKdmIPYEW0ktk+YIfy2B2pvOrECN+Clf2YaripTh",
+	"VSoUHp0sUC1eYyTicPmkYCDGeiwICH5Ata8AGwpKb8YTZpNTYHTQnpFdc840zVdBBZpQyUWcpLIJmXr9",
+	"Xt8mLTM0au9473Gv33uMiMcZ2AMclTN/T1kTNFGopRGvBv1+UB1jkcuEKQVEK+PXrEe+BvHJUb6ez3bI",
+	"pThP9473/o7p39muat6+Qb9vK+JpV4QgoHj/aBNo4EG9zTSFXaBFoDYPGKZZjSfYX1MzflyYT0TQDCh1",
+	"xZiyd/zH78GJMjfbcLz3kl8zwQDepiEzzB/Lmau9782rjmdsXOQ3uTTnnxUKQxTZzcKliUd9sL6+J/gI",
+	"1B8B5mnEW8N99FLmVxiHYjPQKaLzQmk8U2t78sqO7NY9MeM6WGSU13ajjtBZW3jbw0MsfbBscz+PjZsQ",
+	"cuqNO/F2xogTVryuFlCJJVVkXHAj1YJFsMWxt83tduzdIHdY6HDoRs5yw4/Ifzp99fIh1v9tqNFuW3oU",
+	"n1rSGOtzSammhp8Tan91NiDLsgy/LPIcJvik/3goSidvfVeaj/4FDupnoUbQt2FAcKzuvDfmrce3v3WJ",
+	"XPkbQa8pR1/ztm29AFv2LSTNJ7TauKuffQZW4uPPPqsbhtd0Ppk71QWYKmbQIAJt9hOeG1kBMpkjfjIO",
+	"QgViMKBYUdayfUHGq6GIeRr+2CMveAaWgkTOx0YEBFnp9OtnJyQ2lxkEUy4sogbFey1jmxHDfBeRsdQz",
+	"Q2srI+iR37OVYlCogQtrOFhQpSyrxEoaQ7GgU/ZIkTgoyhBD0Qf3d+lNhRRoONyT2gtGFgOsgcR7AqmO",
+	"TNNGMsKHzETkgr4r2AnIGlUjXcowxEDm4EFFqMacpnZB4Bq5ziPUh/pNV+glV/rMJdP1srKC4GXDJfZA",
+	"EnZR1MfVWMR2FyjECL2Pmpstoxrvr02fuej+mvRxLO2arAQlbWozyMXbqtEgxW/9sj6necbNbauc7Ki8",
+	"DxD90zAGc3MqA2gDiVvv/yXVDb37m7epd8hp8qF9v6FTRhT/88ZeQJmrdOTjGJ/0AzfdoOKlO2zy0jXJ",
+	"G9X77UtGItnAq71hYL6yS+tDpYClf/+ATA9OLsBQG/jea8FgQhCHA7QDeN9RG973FU0dtBNeObz9lW8E",
+	"teZcluJLLbjlC5mPeZoywNEdDZ7e/sZbKV9RsbKjUz8TN/f8+wxDLLhRYFcBD7f8+vtob83YCImzWuXK",
+	"qjJ/yGb5ABIA1hED/XvCdY+cI5fyLkkpEhaV/NImvTS3IkVMD34zssow5tiEcGswgObMtbRBNsTc72ts",
+	"rWljykfw6Nt8pw97vzbJ/1ju7hd+pfpHt7/xtdQvIETjb/QOnrp0xOaIGq0FHPsWHwD+G5di4aFv5wE4",
+	"S1rd0e130pm6EiOJp1idziJWgoKpVknLCxG5VBggwFuHQuC5AePRYsFEui9Fttp2E09hCr/I6whDeyk3",
+	"auRYiu3TlfwFXMng6IHrKrFE3t1Ae5k23cAdrpyvNwrHbSHVB108jA9ThBqNGEcdkZxZyLFngrVIQo+0",
+	"lTmfQnyJA1dAYUFglWWOwowL9JhBIe6V4dfYzEhO4hPMoegb8nzURYeBJ0HTFQBjrODRIxcOE1cdhk8w",
+	"ad7wn4z2CqloHFjGIgM7zJIdaGsoAAMOkVlGs4098jAmHev/aa6k27UEyC+PdZjECzQPjOzin1iAovVn",
+	"u/j1QjxSzqMxFFOmwfOB/m2Hj+I68o4HN9tHysOSaI7sADIJUTUUZf3mHnnt0gdZm5Ylp3hOZ5QLklCB",
+	"ucwAjk86R/2n0VCA8yW2MZBqZN+27p8LSO3QORoMInT6jXP4x8lJpWPQsynT3olHcQ0FJlI/P/sdeXXY",
+	"J51BfzDoRtbuEIC3Ll+/cZGbhth3wZ0Yg2dnZLcuPsYx4LYCUgg5oYX7u4LIHPGTFuvvc5dDg/awqJEC",
+	"w6/ZNsGW8TGhmmSMKoxUcaEDiEiyh41mYITEdub0ZuR+GU1yCiAGbGYulSaDJ+TX3qXlYr/cUIaClM2a",
+	"o5aZU1qdhBtCIguhobIn+HxsU107Ci4w9kKNrthCh9OowAaDB2OLzzFj6DgMtOI3kduiLqb38olOsaex",
+	"1LMRgE5HTKRqJBhLXfHvYzsZM9zKXTMLAPYu60C1GV3dCXe14y2Al+a5XKLFC9GtVOPbpsMTMEGZRizK",
+	"BsdiRxABqsswbm0DTB28YDlbYUrWKRMspwD5iV3Rcm/QgkXuNskPSDmfO2r8gRIEsLGvZLq6N+HBj8yz",
+	"/Cq63BdHrggvhx9HlwhD0tFvDf2/lMmGOMY3VM/CCq1YAjauMUdIX1KdYrTNzfHvTHDqtxCczqSYZDZ9",
+	"z9FhizG9oatM0vStlC9pPmX43pM2C6CKBRbGeMVSTt+uMIHj0WDQ5mXrBTay1nOhuV79rYqGz+twMaBy",
+	"IGJBEQuUvIIif05kfJfch7i4yKTuLTB87iEMKXTOADwHzgboTF1PYzuzN1//HeFzOmXbFLA3mdRvvv67",
+	"h1TBYAwHdhUaTLpjLiias9o4QmGWn5Sun/1mmYMTaFsRwVP04EYPd8of4EpdlkBaLwb68J85za9YakVk",
+	"q6HZmdvQ1QmHcIWhGFORosJAy4T1CypYRsYsk0tQWPBqelwRRXwIIH+GQtA5CJnYvo9CCSJcTOvWS3Tb",
+	"9b789iNcb3U9/c3NnZANny70L/RC47l5+Atdgs3b2VSqqPbaHT5fC6eCihALoiU57AO80MY+BHFcdsKg",
+	"6hmFeShoqR0iiBdvc3nLiSuGY9ShuPw+LrU30K6crtftkTUEYo+8CYK+ICylHplFxcqFL4FHfwacfYLl",
+	"iKi2oG9F0AltFsMShZNK5q2hAO1LgeKGpMnWoCOKrhwSEgN/oFqHLLTiqS3iZkPjWDoUqAHKHAkZoWjt",
+	"tgAFaxXHMJ8J1xgXaU3j2A+gPYfiqP90s1YXLMovTq8rx7aTYtd/kAHYek4bvLHWhrXwwSRgPnNoVzCd",
+	"/bsju590sF+i1zoMFlBYoAdjWwP2EnKBljxmC0+xfOceTPSvJGQutuQNol7rhmXDWmIbqmQZkst8HGMF",
+	"SHStoQ0tZYm1n9iKdqiQmpZYY70GcgpNg428rIUKSX2R1ENkDqYERSMcLU1pnaPBwBNlKVi3R04rDAUT",
+	"lWdSTFm+PjPAiD09BjkWom65IhPIMDkUF1AoRYUuQgiQFnKJzFM1kXisnnUfXvj7J+44tp+JsG+02OGo",
+	"WPqJWH8i1h/Bl1oPuXxQd+patsF71ugR2VCJlvUwhwYFABDIOt6Eif22lrjwFwhaWMsYuUHpriz8J+37",
+	"57933zZHdDfCGbbYpluq4VEbNbuSAGbzPSPnQTC7aXYoNoSn23xlY6qTGQbqSUE6YUfdEx8jPhRz6kBJ",
+	"4GN12TnNLZ0ZoalTG5R1jTNqJS2vwY9pclUWvURZpTNnFEwDsd+kOCJCDoUvG25TEswXkOGOaxuCWY19",
+	"PSYu0fBQQFpuyD/sEnFDE79+dnvCbnKuMb2hAmV8KCCz9F//+b/VHMZlopleuMgjLTOWU5vdOI5QQBwK",
+	"Z4r46V8GffJrV2iFfHNJnr85JZff7X959Dl5hfCSL/v9/rMwD051H0/WsQEWl2Jmn/MU1ihyOLGhqKR9",
+	"ga8dlsDhxk7L8EpYWpc3HOMfnJhqJFsFW3vqMttXzhcgL6RNoOGzb1ezFhCHPh8KanRfW0beEHtSCM0z",
+	"CAq2lUnCxiFI14NzTiBjoX0OAQmQZ0bZpHauF1el3iJI0N4bthsNBWTTADE/l5jZx/noMR+zLa0OiTsF",
+	"M7qAUAhnsMccy8DDwh31nxJrMnZVWtDG42KUUYIPq7EMhb0+IyH1yOsr3cjrOiWIBXLtCOKxT95fVjYS",
+	"IlTKJmrWIPvsjKrRhOu42yNHg8ExpGEM19zm8Al3MwD9mD4rRx/WehScWwjmpwiV2WBi+raabvqXpYY0",
+	"pTz+yPCBpiTmLSQJDxKVhTYX/ZPK8klleXjR6QJlBNqcFadMitNSggqrjN+iygRpfA5+KD+8dzqOJYkP",
+	"5P0PrDiY9CV1iQ9qfkKXr4Fq5HjOQzEUQi67xz4vq68iV/IxjbZ+IMjwLnaXezjjUHSE1G2YBcpT5mHH",
+	"bdCXisGgNmIRkeNgSYuwgA3VLu9z4EyAWS0p4gjBMGWzUyvncSGKhRhQnNiIixEkKIIkTwIsbqpIZnWO",
+	"p4YCmbHMUgZ41B75rpYyFtuf0xtse0SnbDSTRW7zxwQCDFe2HchqiwuIOxFhNTFMOwcD65Gj/pHL4LfC",
+	"YoKQPsI8CAb8pcybLWvO5XsuXkisXbEbWyvF+L3bIzI3w7x2Cadc5yZziYHtLm/eCZgT0T81VkzoTQFz",
+	"VO8eL/jgwTxuK7bF9JRb/0kL/9lZyfqumKtK7bG8VxX8NhZyv27xU0XiN68v35It3vc4WreJleswwajy",
+	"NeYSW6IQr7EXc3UhH+xQxH/3HLtuyTGNEgH5y2D1X56/uvQJuMAtkly54aWq0bH+tayPH1wZR0PhoyrQ",
+	"RbJZRyjp4Yc4pEOq+kD6QtNAP3mnP2kPn7SHNiT/DwU1MslqC+27Vze1zTPZSieoCfwZplII48BQTHUp",
+	"1sYriADa5L94Zbt+QAKAXWzzPNj5f8oOcP+uuywLsv1Wz0oItXAncNP53cVJEIoYYCc1548kNq7Rn9TD",
+	"HnkjlcZMPhgiBnFc5mFMFyxWQ1HW6ENrvVHv6mfeNY2a403wS2fQP+yeDAWDhCd5OXUIR4wCE6srHFKC",
+	"MnwjWN9oKIIQzHLo7IYm2kbz1cb1CBDAGoQiQ0eGwg1UWOEEYR4ImeAaKtVA5GLOFFqvfU0HORmKwNCP",
+	"hQuCbAhlTUXlErRXKvGqmVzCFLIM4th65NQaAMps5YXg7wpcey6MgItKbedoMNhiNn3lsuc8hBiDjf9M",
+	"goudWQPNQp01oZkzrtR2/sTvMOSxQGMpULf7NMhuHh9eO+eKyT8suMsxkjjgVAc/mGPz7y2665Mo9gsE",
+	"CsLl8dQoKr1vociDZZF2ZWZV6cue6XsQwiJXZlv6NDVhkH28OTsnUtKm9GoLqmelZQv+eRiL2ylRC5bw",
+	"CU8CchbQuBZ2tyB0rhzR1kxZ3/8sZLwUPT/Z2X7+m/5auN24+1W2atbuzpVmkBhwbktiygQQpcyI7nif",
+	"vCAomhxBzgdMB2N0RnDXQ706MGNArvh3cbeeNeeNzDKf4wPq3ZRp4RqTSUI1kJh08EIel4gWSHhhRN96",
+	"PklCsyVdKaKYJh1wz9q04pCpDWsPWnVXSShpol1ZrXhG1WgucxY7bwSD9JFQA8POdcly5tIvkETObbGC",
+	"oXgBOBMjE1VHpBhzZcIwyZCTqKVI2LFrFqqSYJFMzMOAaTfQg8J4HmIhlO0XzIUU5wW+G8RpQC5025fz",
+	"L/mBYqWNni/ygI9xRZa5+V24roPubOEbinnM9THgnUC6H4q8ALiIiy8CXFMP5cE4IrH9vkfTND4msRUU",
+	"ES2BxmGPpug5QFO02alpnwx/jbuQ+bPR+eZf8D+Fg3CV+sskKmV2EzN0c8pdLW7/cOjzkwILODSaHS6g",
+	"oeewuesc7y5ZE08sUyqHYm6Ae3TCsG5gY7JOc4d2T6t4r5klD/v9zRXgPjbHxM15wZoBHmFWx7+NfFd/",
+	"i2IvshZzbKHcVwW5VoFd4zd3szvmRWtHUlCqaC1CGirt2cRJpBMU0iszTllKh/7+CcCBBCuL6hkKheaI",
+	"WoKrRz7vdyBdO35a0uBjQsmgfzgUc0aFCgr5VIg7oAsLYSNlRFAfDQuojAvtQJI4srJEh7X9yByhh4Zz",
+	"2iLZEaQE8ltL2LuCZhHRUpKJod+YwqeLjiieZdYdFbmSWBa+GMbwVKMjj0lOl0ORUk3LXFx6lsulIHRJ",
+	"Vz1yHhaAIZ2jm5uuq39o7RBBgqgxW0mb1MfmVgcDz3GIY5gXypV3w+yF5iPiWd0+lamyTpzFyCyJD0t3",
+	"Gb0yOmYZZP6juQKePhSdtdRJikwlVpkJoLd4WPRSujJltg4aVi6nUJ2wRN2euEvC04o5KyjZaAvy/IoE",
+	"FVmG4pIZ0WatSIuWZE6vzAg1BOMrOmGY+xtL+5mr4cA1Q4EVgEASULaIwByGf8UWyJJ8tqfBEQFMCCJA",
+	"rdXsERjnxJTli5yjxEHJ5e9O9wdPPj8O68JgqkW/+EYIXNBcYVq2oWAikT6QgXSgrDHXUH00QfznnJlj",
+	"b2Unu6JzqjXLuyfY0VCcXX5b6Qj4WFkhR/m0UDldYgGh8UozrD13SeeMXLFV5PKa+0lFKOV6h56rPpXi",
+	"2fvsM5dGbSiIv1CffYZFWHSRi3Jeg/5hLX86jAKEVGfVsqUUEaAdbu8FW2R0Bd3mBYtPiJBEscTcCrOi",
+	"pce4Oh1nidbhnI6hSk34YFA3pTpdTwC4IJOMT2f62NaagK4BuWQGbPbAAsutsOla0HzOADrrEt/nMBPE",
+	"WMucQKK6o/5TyBeG875gOl/tn040y+Mu4UZTKVNpTbjgagYiLQcP0T7Ar21n5ixb4mRIiungiaEs/vWZ",
+	"zBCAdcVW/mqZo9OJoX5Ioq7j7lAYtlopbsduFjLX5ske+Q5GeYZSy/7b1YIdE/9ymYxvKGxBJ1sWERHj",
+	"TtdZO54x0jEjYpcdQ4naSi2BjmOYSGliV0QlJh2srkyz7okN/o/r4lRs8d1Bt0A2x8wJop2jfr/rbURw",
+	"QLki37x9sf8l6Rj66Grea7aP13FO8ytAfkENyLSLmKejwy/7Q9GxU5/TlenjXSF9Psh4uBefkJcvzBad",
+	"Xbx8gTWvmEhVt0decgEBBGascCCHwtdRhCjRX8UuzQBuD+DoDIW74osFS09sGWWomxX+0MN54SHHOgLQ",
+	"r9UfccN65AzKdynviMSEjWKFFMjWTMQaX1AC0KIMfwxS8cml+WhFIPOhVkzRF1S84gJqGq6YIj+CjgIt",
+	"xPAB3o9dEUAHUHEPO75W1r3c8CW8DgypfBlZXeVV1KltzcNqZTT3losHqfwckb/+8/9O+rUWfLEy/zJg",
+	"BIPixvYwbf4B2sFFGHFYEiHLXkrmWZupi3xZe8H9YAtaR1g1k5E+6eAjKIoddrFk4j55HSRrNEw5l8se",
+	"ufC1xG1JzwVonwTSC1YoPGQDLHFF5r7aXQglTnR9wUV0FJJRXW2kuh1dZ6wFNlLrIVivjqu+WVZkg25q",
+	"PQQr1u2RC7m0nNZW+zL82ks/piVEtZj1AZwZ3oOwX+B+9lKg7VWs4BaAiIAPVur9FoqRuAfmoZQlfE4z",
+	"TLUKBdgcXQMiLIBKxYe9J2z/cdzFUCdi6FqhqEiVy9MooS7J1/RrQ1DPxcSjWUnGr1hYixWzjGEFWb8i",
+	"kB8EIr24ACHGchoo/letVmKI7Arz0iozyUeKmDvtKSucLHxdhDUg08IuaeqWEEkNdcUjyzXE321JYrOO",
+	"Vg4v2TsqBkb28UV4qQhomvVBGGKHmTIhTh4eOuo//RxloaB0nM3JurDFFFvXOsTj0fw8BLLgmYE1xgTj",
+	"Zo1BSsR17Pz1n/8bJrjxYjaWRreEFcmWzKFSrwVcmVee9PtW5MbPYY6crktiZRg98DT0VNtkqqapQb8f",
+	"mTdAY4GLjHlTUUyyJQiNwmLtV8xqj75FqHGGifik2Edqgk7EE5+elK5AEhpLBFODyoR+lqAy4SMFjWIN",
+	"nDxw90M56tyWxrRGT5cVAcqc4pL3er3Y7RvaBG9gFY6HIo7jofiVlWWw44DqLmZSS5AK9g9Jx7LWdRba",
+	"HQpzvCOnNaFCWeUHjvRHniZEjsJABh/Yykhw8zyLXh5G/d6TqN/rH/YHUbT1if7TL5ufGESHvb55YtB/",
+	"0vzE42iATxwdHsITeHrc7xG8/KQffbff7x8NNjxw+PgxPvA4GtgF3YAxuCh2j8gKJP7fs9XeurnOnAw4",
+	"aV4MBJaBqaOdJgzQqQ3mvA+sG7TLaIKjVXLoTeO6h9JLbcfmAyDArELLKJESrb8RnF9K4vdQ1accopfc",
+	"zeikYT618JdNA3LSf+tFe+1eeP9gyUeKALQb7TnFqNrA+kIA58c68ymSSDPnORcvmZjqWWhQDtPwfbxQ",
+	"wovitghCMG3YwEEXgJT7KjEdI29aWp1bbX4o1mw4EXqj7EuWNfjM9HbDrIsigMU02QrWFzoG44GrYMiV",
+	"03tsbx55JSfgbvIANNSuq8YLo0C3QdKMpcwYFXAY2oF3AChRuMTMeSH+XaZl/gTc+QWmjpRKQ71o4Wz+",
+	"wWUOPRjFNth0GHjZ4LzYoSLVZgeGozfO8UydAfAYRuyEflspolYgAM2u3j+D31X80zlLGIfYxSpB21So",
+	"9A6yzkUhHjqJjBnWZlr9CT/zSyhCZf0BeHjv9YrdN7DGQmkq9VacfaV6eyzuokcuysIqQ1EvDefEUGfF",
+	"Ut7Lth7BEdSNs3kqbLV4nnufYFjwpkdOG9ETruIOtjrlRkYBjdIOwqEUK1VjqtUSfFCwzDCfDVdh0ZgA",
+	"TeHt6xchymgonrHc0JZ6JhtHaf5wFoWeiCKrxIaroUhZwg3JCsrr2RSEXJidhM588ZChOOwFvSwrQ9wY",
+	"5H1MYjep+GQoBmETiSwyjODzTtba44/rPfqcJVxYkEztjaPwDevBMIsxN5RbSwBu+Yhx06K1PEGEea2t",
+	"J70Q+9iMu/FJiCqR8dZQYU8D5ukJfA84rrC3qJ51Bl6vdNnxiYrXk8rkDJ0y5uiMaXIFdk0wcgW5aobi",
+	"83BxKuHyxySGnJIK1Ccz+S/CZ4MofOtcovaoROhX8oH4OLXuMfRtz5ChVxVknYfOwUGG1h0oS06Ijw21",
+	"tCTezCwvPCbil8gz3eg2Vl2Bnz+xz5+ffV5Wk0Mh4rMQ94q1QV5qL/GHA28sMSjpDxCD0Bxj2jf3ldYS",
+	"rDmyoUrjnur2CEAeuSLvMP6RW5omElbno5WqZTZxlXOWlRahTsnd5VJginKZhzFcnluUMENrYbZ6dFmr",
+	"rETfan9zHtVht0OxERxEtmODzIpWSTRXa4IFFE+3y+0Ah8hhNZ8zB5f0/n4n+kMqN2C14IrlyYxsSodn",
+	"HSAYVm977SjGApJYF8ribo+4s2A3vIQQA6JBK5ZNgEVoesVASPQcpOT7hbgVJmTz4du8YljplGWpRQ+Z",
+	"viAZvU/TZl1r9miceIcV4WkFExSidMBbAEYLI+cZnmgT0TjmZ7idBRjPqAobtazcTQ05MS4lzm6zfdku",
+	"4Aexkfs3ANpR/UwZv27nX14ewaPC80r9Qwuj+RSy/8nc9PDab5r606hlYHh652L59YzNd+HmW/Ri29HB",
+	"D94n9/6eNeNJCUpAchkRmuRSQa1lvG8uYtlGNEeg0q4pzpBsZRvz8F1ZRmrLgoDWy9MyCSeOCzOmOAaA",
+	"uSRLsMIGKR2p2EZBfZ2svDx/dVmZ+hpjc8AH58uphsf5Ed1PjNxD6gjVtfmkJvziiwfWbymtndZ7UxgA",
+	"UtxSSwiLHSlVQHWKnIpUzgkikzsefnw4+JKMuVbd8i5N+TUTiGhWtnCyYknOtM1CB+6t0qElstWJR1kA",
+	"ngSg5uB+NSKhhS0PxYyqGSb4A3NaJqdGeNsshr01Q32gTALQ9s8kR0Hftzg8YZuiUt2xG6BmgHASv/xU",
+	"cJ+EnIcnPnC3CcXDEhAaSypaBsni0951lrKMadaavlywa3llEVvQ0onFT5Vot/5htzRI24QsNocXJB4Z",
+	"igC651S5HNpNLb1COaOJVDyD4TpScXuo/AcIAd98Y1S7BvZ/tL5auCyfAsl/Ebl/zVZ8+DXJmUjVQ+bp",
+	"VTZ1xYbcvNXg8MBDAzX5hkJOjABuz3+QYjFWmVyw2ELHxlSxEJcPNQ7AwIYSy+UzaKn0EsXujbg0+JfD",
+	"Nc8tuUjlsuxw0O+eQDSWzmXmoKiKQ0rbn/5lQC6fkc6S5oKLKUZa/PQvj+FLtM91IyyZT+hQXM7YckZz",
+	"TRL4b+f88jX54ssv+vsDO53vmNJT8L+Dmepwf6DKxiNyuP9YRUMx2B+oiFzsH6mIHO0fosJ02L8hHfQe",
+	"dcE+wcxCUnQjlgurqp49hR4zQBKFiYpPasnz0eSRca+mDEXsOzgmE5opTDF8zWWGZj9MvQTGTZedP0hG",
+	"NRRcXMsMzIcQJjOB3MQIRl7Ktc2BvMC2dpfbwuOhiHE/wJwpiiyzGZexS67KReiRU8TwkkOA75azGgpz",
+	"sE9IrPNCJBgd7hIAiPBEgPMJsgF0BM0BpK7dWhiGAGcSrhWxDD0K5ENAciUsWi8qIZdiKP5wRoCRp0XO",
+	"FEIzKuUkIpKzaZGZd5oqSzSrpjCaDXxkG6zyfjKvfIx8yk19+Nm2xjrCOr3xrzUgMJ8Dws3Qj9CIHhEu",
+	"wMJ/vRFGaw7GPSBAX6JDoda79S9s7l3Le+j7d3JJ5lSs6ncyquXjqBLQCANMdUCkN43S/d6cPGAQ5g4Y",
+	"VFIHDD5y6gC8T5usxSznAPDQys848qELIi1J46eUAvcvFj3L+UQ7icNG3rsLDfV6wIdlxYwaMzebU+W8",
+	"D1UFGqWuh6zoDtq26aUCNMB+4xowt2QLEUlzukTXWSnrgJRyHMoONpgWjbDIyiCYgxE87eYLlIkwp44V",
+	"hXCdPSLItQaiB94KBjbtjNmi84g7hOj6zPDuiwZhxIgrMOptzG9jNfhPPPATD/z/MQ/kczplB+p6+pub",
+	"eVZlgA2xEw2FHAxp+MTGHqJydEl6EaYDtDsiSMXumSuZvllS5FyvgCqOGc1Zflro2d7xH78358h2WL8P",
+	"50EMdoElroN6ZAHko1Mq46rbC7IoFkI1hK29wEw0YVvuoqEHPgA3Gi6qgibtmqw3ei6uWa4go5ZNZR6U",
+	"5K4GqIfthZnP1xv9w6krxANGjaB8dTVVJFs2vVxCkKrJjyIPNAhwP55vJmXepEov1r221k1zic2oxCWV",
+	"uU7qlVl86++ShoYxvTLkCLY5DL1owXNSZnImC5nxhLNwWV3Sw4ZW35yjVSt83Jq1GtgBv2aCKZ+ICf6c",
+	"M53zxE2LK5LKxMfFVULhcFu/f///BQAA//8=",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
