@@ -344,7 +344,7 @@ func (r *Report) predictable() error {
 	}
 	switch r.Weighting {
 	case WeightNone:
-	case WeightInvX, WeightInvX2, WeightInvY, WeightInvY2:
+	case WeightInvSqrtX, WeightInvX, WeightInvX2, WeightInvSqrtY, WeightInvY, WeightInvY2:
 		if !(r.WeightFloor > 0) || !fin(r.WeightFloor) {
 			return inputErr("report.weight_floor", "must be finite and > 0 for %s", r.Weighting)
 		}

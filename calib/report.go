@@ -77,6 +77,7 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		Range:              workingRange(d.levels),
 		Engine:             EngineVersion,
 	}
+	r.weightFacts(d, w, wp)
 	m.cautions = cautionTexts
 	r.Cautions = m.cautions[:]
 	r.Coefficients = m.coef[:p:p]
@@ -138,7 +139,7 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	wp.zeroText(dt.t)
 	dt.keep(&r.ZeroHandling, start, len(dt.t.b))
 	start = len(dt.t.b)
-	r.Limits = computeLimits(r, f, dt.t)
+	r.Limits = computeLimits(r, f, opt.Weights, dt.t)
 	if len(dt.t.b) > start {
 		dt.keep(&r.Limits.Detail, start, len(dt.t.b))
 	}
@@ -350,8 +351,8 @@ func FailedReport(points []Point, opt Options, cause error) *Report {
 // finite reports whether every float in the report is finite.
 func (r *Report) finite() bool {
 	if !finite(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
-		r.WeightScale, r.WeightFloor, r.Variance.C0, r.Variance.C1, r.Variance.Floor,
-		r.Limits.LOD, r.Limits.LOQ, r.Limits.CriticalValue, r.Limits.CriticalConc, r.Limits.DetectionLimit,
+		r.WeightScale, r.WeightFloor, r.Variance.C0, r.Variance.C1, r.Variance.Floor, r.HeaviestLevel.Share,
+		r.Limits.LOD, r.Limits.LOQ, r.Limits.Sigma, r.Limits.CriticalValue, r.Limits.CriticalConc, r.Limits.DetectionLimit,
 		r.Range.Low, r.Range.High) {
 		return false
 	}
@@ -364,7 +365,7 @@ func (r *Report) finite() bool {
 		}
 	}
 	for _, c := range r.WeightCandidates {
-		if !finite(c.SumAbsRE) {
+		if !finite(c.SumAbsRE, c.MaxLevelShare) {
 			return false
 		}
 	}

@@ -34,6 +34,9 @@ type MethodInput struct {
 	Analytes   []Analyte
 	Acceptance calib.Policy
 	QC         QCPolicy // zero fields take DefaultQCPolicy's values
+	// Weights configures weighting and the σ of LOD/LOQ; zero fields take
+	// calib.DefaultWeightOptions' values.
+	Weights calib.WeightOptions
 	// Description is the administrator's free text about the method.
 	Description string
 }
@@ -48,6 +51,7 @@ type Method struct {
 	Analytes    []Analyte
 	Acceptance  calib.Policy
 	QC          QCPolicy
+	Weights     calib.WeightOptions // every field filled
 	Description string
 	CreatedAt   time.Time
 	CreatedBy   string
@@ -55,7 +59,7 @@ type Method struct {
 
 // Options returns the engine options this method revision fits with.
 func (m *Method) Options() calib.Options {
-	return calib.Options{Model: m.Model, Weighting: m.Weighting, Confidence: m.Confidence, Policy: m.Acceptance}
+	return calib.Options{Model: m.Model, Weighting: m.Weighting, Confidence: m.Confidence, Policy: m.Acceptance, Weights: m.Weights}
 }
 
 // Analyte returns the method's analyte called name.
@@ -70,9 +74,22 @@ func (m *Method) Analyte(name string) (Analyte, bool) {
 
 var (
 	models     = []calib.Model{calib.Linear, calib.LinearOrigin, calib.Quadratic}
-	weightings = []calib.Weighting{calib.WeightNone, calib.WeightInvX, calib.WeightInvX2,
-		calib.WeightInvY, calib.WeightInvY2, calib.WeightInvS2, calib.WeightAuto}
+	weightings = calib.Weightings()
 )
+
+// weightOptionsWithDefaults fills the zero fields of o from
+// calib.DefaultWeightOptions (revisions stored before the options existed
+// read '{}').
+func weightOptionsWithDefaults(o calib.WeightOptions) calib.WeightOptions {
+	d := calib.DefaultWeightOptions()
+	if o.MinReplicates == 0 {
+		o.MinReplicates = d.MinReplicates
+	}
+	if o.LimitSigma == "" {
+		o.LimitSigma = d.LimitSigma
+	}
+	return o
+}
 
 func checkMethod(in MethodInput) error {
 	if strings.TrimSpace(in.Name) == "" || len(in.Name) > 200 {
@@ -106,6 +123,12 @@ func checkMethod(in MethodInput) error {
 	if err := in.QC.check(); err != nil {
 		return err
 	}
+	if in.Weights.MinReplicates < 2 || in.Weights.MinReplicates > 1000 {
+		return FieldError("/weighting_options/min_replicates", "min_replicates must be 2 to 1000, got %d", in.Weights.MinReplicates)
+	}
+	if !slices.Contains(calib.SigmaBases(), in.Weights.LimitSigma) {
+		return FieldError("/weighting_options/limit_sigma", "unknown σ basis %q", in.Weights.LimitSigma)
+	}
 	v := reflect.ValueOf(in.Acceptance)
 	for i := 0; i < v.NumField(); i++ {
 		if f := v.Field(i); f.Kind() == reflect.Float64 && (math.IsNaN(f.Float()) || math.IsInf(f.Float(), 0)) {
@@ -136,6 +159,7 @@ func normalisePolicy(p calib.Policy) (calib.Policy, []byte, error) {
 // advisory lock, so revisions are numbered without gaps or duplicates.
 func (db *DB) CreateMethod(ctx context.Context, in MethodInput, actor string) (m *Method, created bool, err error) {
 	in.QC = in.QC.withDefaults()
+	in.Weights = weightOptionsWithDefaults(in.Weights)
 	if err := checkMethod(in); err != nil {
 		return nil, false, err
 	}
@@ -151,6 +175,10 @@ func (db *DB) CreateMethod(ctx context.Context, in MethodInput, actor string) (m
 	analytesJSON, err := json.Marshal(in.Analytes)
 	if err != nil {
 		return nil, false, fmt.Errorf("store: marshal analytes: %w", err)
+	}
+	weightsJSON, err := json.Marshal(in.Weights)
+	if err != nil {
+		return nil, false, fmt.Errorf("store: marshal weighting options: %w", err)
 	}
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
 		m, created = nil, false
@@ -171,11 +199,11 @@ func (db *DB) CreateMethod(ctx context.Context, in MethodInput, actor string) (m
 			revision = latest.Revision + 1
 		}
 		m, err = scanMethod(tx.QueryRow(ctx, `
-INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by, qc, description)
-VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10)
+INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by, qc, description, weighting_options)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11)
 RETURNING `+methodColumns,
 			in.Name, revision, string(in.Model), string(in.Weighting), in.Confidence, analytesJSON, policyJSON, actor, qcJSON,
-			in.Description))
+			in.Description, weightsJSON))
 		if err != nil {
 			return classify("insert method "+in.Name, err)
 		}
@@ -187,7 +215,7 @@ RETURNING `+methodColumns,
 		return writeAudit(ctx, tx, actor, action, entityMethod, fmt.Sprintf("%s/%d", m.Name, m.Revision),
 			map[string]any{"name": m.Name, "revision": m.Revision, "model": m.Model, "weighting": m.Weighting,
 				"confidence": m.Confidence, "analytes": m.Analytes, "acceptance": json.RawMessage(policyJSON),
-				"qc": json.RawMessage(qcJSON)})
+				"qc": json.RawMessage(qcJSON), "weighting_options": json.RawMessage(weightsJSON)})
 	})
 	if err != nil {
 		return nil, false, classify("create method", err)
@@ -199,11 +227,11 @@ func sameMethod(m *Method, in MethodInput) bool {
 	return m.Model == in.Model && m.Weighting == in.Weighting && m.Confidence == in.Confidence &&
 		m.Description == in.Description &&
 		slices.Equal(m.Analytes, in.Analytes) && reflect.DeepEqual(m.Acceptance, in.Acceptance) &&
-		m.QC.equal(in.QC)
+		m.QC.equal(in.QC) && m.Weights == in.Weights
 }
 
 const (
-	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by, qc, description`
+	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by, qc, description, weighting_options`
 	sqlSelectMethod = `SELECT ` + methodColumns + ` FROM methods`
 )
 
@@ -237,10 +265,10 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*Method, error) {
 		m                    Method
 		model, weighting     string
 		analytes, acceptance []byte
-		qc                   []byte
+		qc, weights          []byte
 	)
 	if err := row.Scan(&m.Name, &m.Revision, &model, &weighting, &m.Confidence, &analytes, &acceptance, &m.CreatedAt, &m.CreatedBy,
-		&qc, &m.Description); err != nil {
+		&qc, &m.Description, &weights); err != nil {
 		return nil, err
 	}
 	m.Model, m.Weighting = calib.Model(model), calib.Weighting(weighting)
@@ -251,7 +279,7 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*Method, error) {
 		cache.mu.Unlock()
 		if c != nil {
 			// A copy the caller may change.
-			m.Analytes, m.Acceptance, m.QC = slices.Clone(c.Analytes), c.Acceptance, c.QC
+			m.Analytes, m.Acceptance, m.QC, m.Weights = slices.Clone(c.Analytes), c.Acceptance, c.QC, c.Weights
 			m.Acceptance.Mandatory = slices.Clone(c.Acceptance.Mandatory)
 			return &m, nil
 		}
@@ -266,6 +294,10 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*Method, error) {
 		return nil, fmt.Errorf("decode qc of method %s/%d: %w", m.Name, m.Revision, err)
 	}
 	m.QC = m.QC.withDefaults()
+	if err := json.Unmarshal(weights, &m.Weights); err != nil {
+		return nil, fmt.Errorf("decode weighting options of method %s/%d: %w", m.Name, m.Revision, err)
+	}
+	m.Weights = weightOptionsWithDefaults(m.Weights)
 	if cache != nil {
 		c := m
 		c.Analytes, c.Acceptance.Mandatory = slices.Clone(m.Analytes), slices.Clone(m.Acceptance.Mandatory)

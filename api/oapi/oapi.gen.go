@@ -122,6 +122,24 @@ func (e CurveStatus) Valid() bool {
 	}
 }
 
+// Defines values for FitFlag.
+const (
+	FitFlagDominantLevelWeight FitFlag = "dominant_level_weight"
+	FitFlagFewReplicatesForS2  FitFlag = "few_replicates_for_s2"
+)
+
+// Valid indicates whether the value is a known member of the FitFlag enum.
+func (e FitFlag) Valid() bool {
+	switch e {
+	case FitFlagDominantLevelWeight:
+		return true
+	case FitFlagFewReplicatesForS2:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for HealthStatus.
 const (
 	HealthOK    HealthStatus = "ok"
@@ -260,6 +278,30 @@ func (e Scope) Valid() bool {
 	}
 }
 
+// Defines values for SigmaBasis.
+const (
+	SigmaBasisAuto          SigmaBasis = "auto"
+	SigmaBasisBlankSd       SigmaBasis = "blank_sd"
+	SigmaBasisLowestLevelSd SigmaBasis = "lowest_level_sd"
+	SigmaBasisResidualSd    SigmaBasis = "residual_sd"
+)
+
+// Valid indicates whether the value is a known member of the SigmaBasis enum.
+func (e SigmaBasis) Valid() bool {
+	switch e {
+	case SigmaBasisAuto:
+		return true
+	case SigmaBasisBlankSd:
+		return true
+	case SigmaBasisLowestLevelSd:
+		return true
+	case SigmaBasisResidualSd:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for TrendParameter.
 const (
 	TrendParameterIntercept  TrendParameter = "intercept"
@@ -325,13 +367,15 @@ func (e VerificationKind) Valid() bool {
 
 // Defines values for Weighting.
 const (
-	WeightingAuto  Weighting = "auto"
-	WeightingInvS2 Weighting = "1/s^2"
-	WeightingInvX  Weighting = "1/x"
-	WeightingInvX2 Weighting = "1/x^2"
-	WeightingInvY  Weighting = "1/y"
-	WeightingInvY2 Weighting = "1/y^2"
-	WeightingNone  Weighting = "none"
+	WeightingAuto     Weighting = "auto"
+	WeightingInvS2    Weighting = "1/s^2"
+	WeightingInvSqrtX Weighting = "1/x^0.5"
+	WeightingInvSqrtY Weighting = "1/y^0.5"
+	WeightingInvX     Weighting = "1/x"
+	WeightingInvX2    Weighting = "1/x^2"
+	WeightingInvY     Weighting = "1/y"
+	WeightingInvY2    Weighting = "1/y^2"
+	WeightingNone     Weighting = "none"
 )
 
 // Valid indicates whether the value is a known member of the Weighting enum.
@@ -340,6 +384,10 @@ func (e Weighting) Valid() bool {
 	case WeightingAuto:
 		return true
 	case WeightingInvS2:
+		return true
+	case WeightingInvSqrtX:
+		return true
+	case WeightingInvSqrtY:
 		return true
 	case WeightingInvX:
 		return true
@@ -552,9 +600,15 @@ type Curve struct {
 	EngineVersion string `json:"engine_version"`
 
 	// Exclusion Present on an exclusion revision.
-	Exclusion  *Exclusion `json:"exclusion,omitempty"`
-	ID         UUID       `json:"id"`
-	Instrument string     `json:"instrument"`
+	Exclusion *Exclusion `json:"exclusion,omitempty"`
+
+	// Flags Facts about the fit that decide no verdict.
+	Flags []FitFlag `json:"flags"`
+
+	// HeaviestLevel The level holding the largest share of the total weight.
+	HeaviestLevel *LevelShare `json:"heaviest_level,omitempty"`
+	ID            UUID        `json:"id"`
+	Instrument    string      `json:"instrument"`
 
 	// Levels Distinct levels in the fit.
 	Levels int `json:"levels"`
@@ -601,13 +655,16 @@ type Curve struct {
 	// Unit UCUM code of the analyte's concentration unit.
 	Unit string `json:"unit"`
 
-	// VarianceModel With `1/s^2`, the model of the response SD, s(x) = c0 + c1·x.
+	// VarianceModel With `1/s^2`, the variance function of the response SD: kind `power`,
+	// s(x) = c0·max(x, x_min)^c1 with x_min the smallest non-zero fitted
+	// concentration; kind `linear_sd` (curves of calib/1.0.0),
+	// s(x) = c0 + c1·x.
 	VarianceModel *VarianceModel `json:"variance_model,omitempty"`
 
 	// Verdict `fail` when any mandatory check failed or the curve could not be fitted.
 	Verdict Verdict `json:"verdict"`
 
-	// WeightCandidates With `auto`, every candidate's score; empty otherwise.
+	// WeightCandidates Every candidate's score, with `auto` and with a fixed weighting alike (empty on curves of calib/1.0.0 with a fixed weighting).
 	WeightCandidates []WeightCandidate `json:"weight_candidates"`
 
 	// WeightConvention How weights are scaled, e.g. normalised to sum to n before `residual_sd`.
@@ -615,6 +672,9 @@ type Curve struct {
 
 	// Weighting The scheme used (the one chosen when `auto` was requested).
 	Weighting Weighting `json:"weighting"`
+
+	// WeightingAdvised The scheme `auto` chooses for these readings, also when the method fixed another; absent when no candidate could be scored.
+	WeightingAdvised *Weighting `json:"weighting_advised,omitempty"`
 
 	// WeightingRequested The scheme the method asked for.
 	WeightingRequested Weighting `json:"weighting_requested"`
@@ -710,10 +770,17 @@ type CurveSummary struct {
 	// Verdict `fail` when any mandatory check failed or the curve could not be fitted.
 	Verdict Verdict `json:"verdict"`
 
-	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-	// replicate SDs; `auto` chooses among the others by the smallest sum of
-	// absolute relative errors of the back-calculated standards and reports
-	// every candidate in `weight_candidates`.
+	// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+	// power of its concentration or response (Almeida et al., J.
+	// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+	// variance function s(x) = c0·x^c1 fitted across levels to log(level
+	// SD) against log(concentration), never by a level's own SD; it is a
+	// candidate of `auto` only when every non-zero level has the method's
+	// `weighting_options.min_replicates` readings. `auto` chooses the
+	// candidate with the smallest sum of absolute relative errors of the
+	// back-calculated standards among those in which no level holds more
+	// than half of the total weight. Every curve reports all candidates in
+	// `weight_candidates`, also when the method fixed its weighting.
 	Weighting Weighting `json:"weighting"`
 }
 
@@ -754,6 +821,12 @@ type ExclusionRequest struct {
 	// Reason Why the readings are excluded.
 	Reason Text `json:"reason"`
 }
+
+// FitFlag A fact about a fit that decides no verdict. `dominant_level_weight`:
+// one level holds more than half of the total weight (see
+// `heaviest_level`); `few_replicates_for_s2`: `1/s^2` was used with a
+// level that has fewer readings than the method's `min_replicates`.
+type FitFlag string
 
 // Health defines model for Health.
 type Health struct {
@@ -805,6 +878,14 @@ type LateSampleInput struct {
 	Responses Responses `json:"responses"`
 }
 
+// LevelShare The level holding the largest share of the total weight.
+type LevelShare struct {
+	Concentration float64 `json:"concentration"`
+
+	// Share Σw of the level's readings over Σw of all fitted readings.
+	Share float64 `json:"share"`
+}
+
 // Limits Detection and quantification limits, in concentration units except `critical_value` (a response); null when not computed.
 type Limits struct {
 	// CriticalConcentration ISO 11843-2 critical value of the net concentration, x_c.
@@ -824,6 +905,12 @@ type Limits struct {
 
 	// Loq ICH Q2 quantification limit, 10·σ/S.
 	Loq *float64 `json:"loq"`
+
+	// Sigma The value of σ, in response units; absent when `sigma_basis` is.
+	Sigma *float64 `json:"sigma,omitempty"`
+
+	// SigmaBasis The σ used (never `auto`); absent when not computed and on curves of calib/1.0.0 (which used the residual SD).
+	SigmaBasis *SigmaBasis `json:"sigma_basis,omitempty"`
 }
 
 // Method defines model for Method.
@@ -852,11 +939,21 @@ type Method struct {
 	PendingCurvesInForce bool   `json:"pending_curves_in_force"`
 	Revision             int    `json:"revision"`
 
-	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-	// replicate SDs; `auto` chooses among the others by the smallest sum of
-	// absolute relative errors of the back-calculated standards and reports
-	// every candidate in `weight_candidates`.
+	// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+	// power of its concentration or response (Almeida et al., J.
+	// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+	// variance function s(x) = c0·x^c1 fitted across levels to log(level
+	// SD) against log(concentration), never by a level's own SD; it is a
+	// candidate of `auto` only when every non-zero level has the method's
+	// `weighting_options.min_replicates` readings. `auto` chooses the
+	// candidate with the smallest sum of absolute relative errors of the
+	// back-calculated standards among those in which no level holds more
+	// than half of the total weight. Every curve reports all candidates in
+	// `weight_candidates`, also when the method fixed its weighting.
 	Weighting Weighting `json:"weighting"`
+
+	// WeightingOptions A method's weighting options, every default filled.
+	WeightingOptions WeightingOptions `json:"weighting_options"`
 }
 
 // MethodList defines model for MethodList.
@@ -889,11 +986,21 @@ type MethodRequest struct {
 	// PendingCurvesInForce Whether a passing curve that awaits review may be the curve in force (default false).
 	PendingCurvesInForce *bool `json:"pending_curves_in_force,omitempty"`
 
-	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-	// replicate SDs; `auto` chooses among the others by the smallest sum of
-	// absolute relative errors of the back-calculated standards and reports
-	// every candidate in `weight_candidates`.
+	// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+	// power of its concentration or response (Almeida et al., J.
+	// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+	// variance function s(x) = c0·x^c1 fitted across levels to log(level
+	// SD) against log(concentration), never by a level's own SD; it is a
+	// candidate of `auto` only when every non-zero level has the method's
+	// `weighting_options.min_replicates` readings. `auto` chooses the
+	// candidate with the smallest sum of absolute relative errors of the
+	// back-calculated standards among those in which no level holds more
+	// than half of the total weight. Every curve reports all candidates in
+	// `weight_candidates`, also when the method fixed its weighting.
 	Weighting Weighting `json:"weighting"`
+
+	// WeightingOptions A method's weighting options; a field left out takes its default.
+	WeightingOptions *WeightingOptionsInput `json:"weighting_options,omitempty"`
 }
 
 // Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
@@ -1295,6 +1402,16 @@ type SamplesRequest struct {
 // Scope defines model for Scope.
 type Scope string
 
+// SigmaBasis The σ of the ICH Q2(R2) limits LOD = 3.3·σ/S and LOQ = 10·σ/S.
+// `blank_sd`: the SD of the readings at nominal zero (also those
+// excluded from the fit); `lowest_level_sd`: s/√w of a reading at the
+// lowest non-zero standard, the SD the weighting implies there (equal
+// to the residual SD when unweighted); `residual_sd`: the residual SD,
+// the SD of a reading of unit weight; `auto` (the default): `blank_sd`
+// when the run has `min_replicates` or more blank readings, else
+// `lowest_level_sd`.
+type SigmaBasis string
+
 // Standard defines model for Standard.
 type Standard struct {
 	Analyte       string    `json:"analyte"`
@@ -1410,7 +1527,10 @@ type UUID = openapi_types.UUID
 // Unit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
 type Unit = string
 
-// VarianceModel With `1/s^2`, the model of the response SD, s(x) = c0 + c1·x.
+// VarianceModel With `1/s^2`, the variance function of the response SD: kind `power`,
+// s(x) = c0·max(x, x_min)^c1 with x_min the smallest non-zero fitted
+// concentration; kind `linear_sd` (curves of calib/1.0.0),
+// s(x) = c0 + c1·x.
 type VarianceModel struct {
 	C0   float64 `json:"c0"`
 	C1   float64 `json:"c1"`
@@ -1496,26 +1616,81 @@ type VerificationRequest struct {
 
 // WeightCandidate defines model for WeightCandidate.
 type WeightCandidate struct {
+	// Advised The scheme `auto` chooses.
+	Advised bool `json:"advised"`
+
+	// Chosen The scheme the fit used.
 	Chosen bool `json:"chosen"`
 
-	// Note Why a candidate was skipped; empty otherwise.
+	// MaxLevelWeightShare The largest share of the total weight one level holds under this candidate; null when it was not fitted.
+	MaxLevelWeightShare *float64 `json:"max_level_weight_share"`
+
+	// Note Why a candidate was skipped or passed over; empty otherwise.
 	Note string `json:"note"`
 
 	// SumAbsRe Σ|%RE| of the back-calculated standards; null when the candidate was skipped.
 	SumAbsRe *float64 `json:"sum_abs_re"`
 
-	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-	// replicate SDs; `auto` chooses among the others by the smallest sum of
-	// absolute relative errors of the back-calculated standards and reports
-	// every candidate in `weight_candidates`.
+	// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+	// power of its concentration or response (Almeida et al., J.
+	// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+	// variance function s(x) = c0·x^c1 fitted across levels to log(level
+	// SD) against log(concentration), never by a level's own SD; it is a
+	// candidate of `auto` only when every non-zero level has the method's
+	// `weighting_options.min_replicates` readings. `auto` chooses the
+	// candidate with the smallest sum of absolute relative errors of the
+	// back-calculated standards among those in which no level holds more
+	// than half of the total weight. Every curve reports all candidates in
+	// `weight_candidates`, also when the method fixed its weighting.
 	Weighting Weighting `json:"weighting"`
 }
 
-// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-// replicate SDs; `auto` chooses among the others by the smallest sum of
-// absolute relative errors of the back-calculated standards and reports
-// every candidate in `weight_candidates`.
+// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+// power of its concentration or response (Almeida et al., J.
+// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+// variance function s(x) = c0·x^c1 fitted across levels to log(level
+// SD) against log(concentration), never by a level's own SD; it is a
+// candidate of `auto` only when every non-zero level has the method's
+// `weighting_options.min_replicates` readings. `auto` chooses the
+// candidate with the smallest sum of absolute relative errors of the
+// back-calculated standards among those in which no level holds more
+// than half of the total weight. Every curve reports all candidates in
+// `weight_candidates`, also when the method fixed its weighting.
 type Weighting string
+
+// WeightingOptions A method's weighting options, every default filled.
+type WeightingOptions struct {
+	// LimitSigma The σ of the ICH Q2(R2) limits LOD = 3.3·σ/S and LOQ = 10·σ/S.
+	// `blank_sd`: the SD of the readings at nominal zero (also those
+	// excluded from the fit); `lowest_level_sd`: s/√w of a reading at the
+	// lowest non-zero standard, the SD the weighting implies there (equal
+	// to the residual SD when unweighted); `residual_sd`: the residual SD,
+	// the SD of a reading of unit weight; `auto` (the default): `blank_sd`
+	// when the run has `min_replicates` or more blank readings, else
+	// `lowest_level_sd`.
+	LimitSigma    SigmaBasis `json:"limit_sigma"`
+	MinReplicates int        `json:"min_replicates"`
+}
+
+// WeightingOptionsInput A method's weighting options; a field left out takes its default.
+type WeightingOptionsInput struct {
+	// LimitSigma The σ of the ICH Q2(R2) limits LOD = 3.3·σ/S and LOQ = 10·σ/S.
+	// `blank_sd`: the SD of the readings at nominal zero (also those
+	// excluded from the fit); `lowest_level_sd`: s/√w of a reading at the
+	// lowest non-zero standard, the SD the weighting implies there (equal
+	// to the residual SD when unweighted); `residual_sd`: the residual SD,
+	// the SD of a reading of unit weight; `auto` (the default): `blank_sd`
+	// when the run has `min_replicates` or more blank readings, else
+	// `lowest_level_sd`.
+	LimitSigma *SigmaBasis `json:"limit_sigma,omitempty"`
+
+	// MinReplicates Fewest readings every non-zero level needs for `1/s^2` to be a
+	// candidate of `auto` (and for a fixed `1/s^2` not to be flagged),
+	// and fewest blank readings `limit_sigma: auto` takes the blank's SD
+	// from. Default 3: an SD from two readings has one degree of
+	// freedom (its 95 % range spans a factor of about 70).
+	MinReplicates *int `json:"min_replicates,omitempty"`
+}
 
 // CurveID defines model for CurveID.
 type CurveID = UUID
@@ -7642,341 +7817,363 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L3dchtJti72KmnOmRDYUwRBiOqWyJiIw6Gkae7R35Dq7n3c0EYlqhJADguZUGUWQUxLDjt8433rGz/A",
-	"OX6AfSIcEw7fte+Pn8HzJI5cKzMrq1AACxSp7tnWREyLAKryP9f/+tZPO4mczaVgQqudo592poymLIc/",
-	"z5nOlydjzXLzKWUqyflccyl2jnYuWCJFqoiWZEG5JiM2ljkjuXmFi0l3J9rJ2fuC5yzdOdJ5waIdlUzZ",
-	"jJqmZlzwWTHbOepFO3o5ZztHO1xoNmH5zsePH6OdOc3pjGk7jNMiv2JnT1fH8HbKSGJ+fKAIT02X3Hw9",
-	"p3q6E+0IOoOG041D+Q85G+8c7fxmv1yFffxV7X/33dnTHTOes5TN5lIzkSz/xJarAzkhScaZ0HvJVCom",
-	"yCVbkg4l5n3CFaFkImVKkqnkCdsleko1mdFLZn4xC8ZZOhBmiExpouiYHRPFGNFTRuSc5dT08kCRoM/u",
-	"QLjZ4n6V8w3GumcGW1l3ev2CiYme7hwd9B9HZh/8Z7PqWrPctPkvP57s/fd076+9vSfd4dHeu58OooP+",
-	"44//Ycdvl9I5FxNcHKF0XsyY0M07xP3vhKdMaD7mLI8IVWQulWYpWXA9JVwrkhdCrdvFspPb7uaZ7xyG",
-	"fV6IdWcqL8T9nqiP5n01l0IxOOF/oOk5br/5lEih7WrS+TzjCRyA/XkuRxmb/e4vygz0p5Y9vsG3sNPq",
-	"VF/SbCzzGUuJWgpNryOyyKWYELPFROaEkiuaFYzIQiue4nnEZo/IzL07EP908fpVRCjBI0EWU5YzQoko",
-	"ZiOWkxHLpJioiFBBCnEp5EKQMWdZal6xJ47IfCByKiaMXHGZUc3g1/cFy5fE0wK8N6lkigipiVmapbkH",
-	"H6OdUynGGU8+6+rBQWFKFnli6I/SVDMylvmIG6oIP+KF7lAkUiRnV5wtWEpoljOaLiNCBwJ/MldAFppQ",
-	"MuY6ArKAL8PdgIWnM2buj7vbQGOU5llGuBiY6U+meteux3MYRsrE514QLS+ZIBlNLhVhV2b7VCLnjGQc",
-	"bjoXJL7ec1dnD35TcXcHqIg5CTR7lucy/5zDdh0TZnruEjONkUyXRNGlIlJkSzIA7lQ+NNghVKSVTTbE",
-	"4mO080rq57IQ6eded0OZUn8cy0vCrrnSMLI3dJlJmr6V8gXNJ+xzDxBWlF0njNnboVh+xfIHiiRSjPmk",
-	"yFlKMj7jONoLll/xhH0n6BXlGR1ln33AKdV0RBUjCRVmJUdmr2kyZSkRchEZ+uimwRNmuLyaFlobCpjK",
-	"hTCsoy5J7XlRqmlc9un9QOiCob2V8iUVS8sf1C9yox8of9BzQ+a4IvKK5cC07abd1XS/E7TQU5nzv7LP",
-	"eotecqW4mEQlZ4s8v5K5od3ykqVkxGhuWJFZldqkf/jhh72TQk+NlJFQzVZli/gP8HaMVJ0KEgM5iQnV",
-	"OuejQjPSOX9+Sr7+5lFvd7MEXRfDcOnmuUyYUua+PBOa6+XnXMEfWJbtWYGCi3mhkWGPckYvQdItMkbk",
-	"OLw2x3YFVAwUTBFzwwZCjsdMpOYqgaRQEtsiY5bDfSdUMZ/LXLP0JUs5fQvr8bm5P1yJB4qcYq97ZhTm",
-	"chiCIUVNgic0Sdhcqy6In7YPM4QT+J6KhJ2ZZYOxpyk379DsTW4a0NwIimOaKVYfSfk20dOcqanMUnUM",
-	"KwljyNhYGxGOaNA4zJCYmHDBQKMY0yLTpKOmKJdlGXJpKeDBGdNTmcJRnAfj+GlnRJPLYUKzZJjJxVDL",
-	"jOVmBMM5ymDsOskKxa/YS6fo4fk1p4PqnaOdVBaGpkdGI8EHDnq9qEkvRDHSbHnZ54yL4ZwqNRznNMFl",
-	"+Glj261b/jwzmcqZVAlLqdI84Xo5pNl8euNpPIGHPkYojJhN3/I9I5YN5Xg45tu+OaMipVrmDarv6ZQZ",
-	"YW9hFF8ypjwrcvwXj9oVy1Oe6GO8CnrKckWo0Q/SK65kvgQVS7OZumks0M8ro4DBeK7P8KWDcn1pnlOj",
-	"7haCvy+Y/d3slp0Ay7ae9fUwV/d7FMxRztgVy5TVz/HRR+F7/VUjCb6YD9X7gubIKD/h/MtCZ5zlw0TK",
-	"SzVM722yrh+lC9DFLYu/l77yQqgt9/uK5XxsOcYqJage+w+/ffrBKMjBK0YFFCnNU9I5O/1+//T0+10y",
-	"o0tiaCuhE8qF0RO0GgghZ9woE6Bed8lTS4X7vYhQIwmR7y7Iszcn5OKHvceHX5OXQIXJ416v93QgEprx",
-	"keUoYfd4xTI6kjlc1QfKkm+imFYgqhm5FAxH97DiH/03cvQXlmizoCVreiMzniy35GzPQIH0TM3wpbHM",
-	"ExY5vqVKjrU1i1qd6qcznG0YS4u317OJFi83MIkWbzWyiBbvVRjE9vS8QsEbyHWrEVSIdZs3KqT3VhS2",
-	"DSXd4q0aXWzxZpXKtXhhGxpnZFykc1kmFyw1t6+Z4inSSQMitp58gSh54zA/hprPj+FG1Y5G04Fde2/W",
-	"X8doI7HYTAjq56R6ElfvYWXPmrd+9RiFF2zjHr5rosLueNR9FopPBDRkdAdY4Obd8Tyg130U8oBur9c7",
-	"aDhjJ4JmS9R/N1L7Kr1G43p7Ez4IevpGg7t5pn6goCv7fuOKFSnXz66cHtl+DiVzqKnGRhFeUEVSKVhE",
-	"WHfSJXFeiG6SM6pZGkckBkNwd8x15TOdz3N5FX6TMzNMlsbdVW9MZEYgG7x1htA63RtttKCbU9NQczs1",
-	"Kko129N8xpqeTZmmPGumH3Oaa54UGc1VRLhIsgL0euqM4TmYlqiSotvoXAq3jZr7hBOMdvz1s72v3ccX",
-	"crLlLrIr5wttxcmC07LCymozsC03jfWUFmZ4as3hQVuzMhSWKzCIoJnhyFoV4A47ITMwqVqyPBBJzjXL",
-	"OSXjXM7IvBhlXE1ZSiYFT83LDeIjTZKcpVwDoYkGImeTIjM/Qv9WuLx4/QYsC2Ses4SlDJrCzSWjJXhx",
-	"aGaubErmLFdSDIR3FWeMKmZdmW6lV07XjAun660KCiBFbLm9ZgsLjSy2utLPzeNkMWVo/UhM4ySRRZYS",
-	"awJ278JqCRIbXsDS2GwG9AUrE+ORjNGDsJgug6M9kjJjVFSvzcqcwabafKECcRiOghmRYTxgUzwmosiy",
-	"+gym1BwVAT69BUXrlJtIM8U3raDRHfWCzfJe/bgyo+YH9iPr69ZTM1wYUcoS51D0BgIwDiy4YnZioYVg",
-	"dfHacIuKiIk7Fax20Bh6TRqnkjNvecRbp0urWSJnDK5TIwVV5t4YCWTNPoKv3z1jtmbGqII7C2phuJWf",
-	"vGHN/K8coTtxfpmi8pZUZQ+7VBvJbrnuTYEScAAsKwpo1xw0xCMSl9Ke4Xko7sXRQMSBqGd+qUt55jsv",
-	"qBk6xaUw33nRDBrJmfnlig2d6DpEE3xEYi+pwVtM8bSg2dBIa+YLK5IpaGUmhdRS8MT8kuZ8rOMuCb4l",
-	"Hb9mhgjaA7NL7CaAacy5frU0hMWcm0RnS+IbQQ+LWaWFzC8N0wQPedd1SLgaCLdLhGrCxYQpfQSvCLbw",
-	"kTEqk/OSN+C1pAJO88VTb5AH93IZqWF+pSjHPVCk3yMzqTQxJF7ogXBSCfahotJN/QNTekLzlKCYAhdH",
-	"kY5ibCDiPz57S/avDvZ1zkSq4t0uOatcdVKIjCkVko6MKzBeEKoGwi9qZO+iednbt+GqjI1MYYQbQQ56",
-	"pDbOgQB/aOT6wQbKreoAUcdvc4beBVIjmLvWgiKMCNyom1S1kgZ9JNQo7EE1akGgQqw5paE6AU8FZ7TU",
-	"GmAk7hSZm2qOS3BRLYmKdq73zCz2rmgOzhczHbi6L7l44aaEX7h5wacXNLl8PX4OU4Mvvl2dH3z/B5pc",
-	"nlbmCF+fX/h54mc72Qs712d2qvDjWTBf+zRO+hznDN+9LieO4w1mD188xSXASBFzhNF+1kSfnG0uCR80",
-	"oisSLH8ljPJwg7p00Av+d4O58tSIbCA9NbCLhdxTPDXH2D+F+pq5vXAirmimItLrPjLkpNd98uTJjarc",
-	"kydPKsrco+ZR6VxmLwxzUFta7y6mbDGlOUijphF0FCvSObt4Tb55/E1vr7/rmJyPfhlRxTIuWLeBpzWp",
-	"WsMpn0xbmj7sG5lctHwB9p+1fHhBc8HFZJsBuVfajqjGxe3wqu3UBlKZdVRZtEbOjVt1XmSNvLsk7kYc",
-	"6viPTBOadSNymnHRJadTNuuS/jekc/Dk8cEuOXzycPeIxAd7fRUPQA7FsLIRW0qRkp//rW/4UMeOe/fY",
-	"PPpQxeC89M88JBdPj0ncN40QvZCG9QnFksJQDveYZ2TQIpy3YxKf7x3iOyR4JTLNDwQdyStGfgfPOy8z",
-	"CKIQt7Ygf/9f/tc+9ny4d6BiMpZFTlZ7Hgjf9UHY9UHvOiaaicor1rcKT0NcnWXBhitXmYtZsp1oxyzH",
-	"TrTTx09mOjvRjhmP+a133ZK0m009wBbMXw/dX33/3fmh++vwwD9n2jcno8hVk2Hh9Zy+Lxi5ZEvFtGGz",
-	"SuakY67x14dFXl7tuaEcYgL2vyAK9dFBv1UU6nDv3e/+Q5OUDbHB23rMCVpZUCrokh+cupQzagapqjqf",
-	"fZiaQ54Z6S+RbDzmCTfKhhEAq0xaxagEJvKK5tzItjF4PNlsrpcRSn54oxUaYQQzrZtu4DlD9iISW70I",
-	"VMt4bNTJyLYLDldQLgfCKJdwZOrEEcnEkOpGrcZOtxCgD7qnqyxjk8WHlha+ld+SwJCxUTtzz5l3YE7b",
-	"+Q6a/AbhzqxO/EyQmUxZtsfeF2i/lnnK8iNiOA7NyY+jXkRGB+8i+8VQ5nzCBfkRvntf0NRIA4l7LiKj",
-	"/ruK/7qdm8JaMx42DX+9EHDawPrNJo5QUk/NZ6eYepGglbXd9OuOalO/7jcyozrn167jcK0jon7+r51/",
-	"/n//j//xh3/e/fv/9H/9/H9GJJcLZcSm4Dlc78qS3dnabV5YNLNuvg42Epcqf+NFSpSWW92MdLzagxNZ",
-	"ScomOWPKrOA4ZyyVs4gIw2PIPDAhBC4oDNQZXrFcNYqrkAAR+IPxeSQrXjU0c4OoYjQ7w/P7B91et9ds",
-	"QrbOYexv0zV85h/8GO3wtF3sexSG8jfavrxLrjrXp1xpLhKNx185iXyMYvimjBJr3biRrFgx1xwmUD6b",
-	"zZHw0zBnV3z9nljl1T3UfLwMa6wM/aAxzsNQrJtG/hIe+hjtiKbTZ5lauWCkA3tsNAopmNNvCwHq7Y2L",
-	"OZe8kbyiu94HQVhmGrnpypy4XiMyyWUxZykZLS014wLZkOIlYW4fG2SW9o0ZVhNTqPhw6yGLfDIFSSAk",
-	"UoaQapYbPRAG0ylQFbQe0Apz2L2lARVsOTfN6xwe+hho+irdQF780qfsilsHbWe5f70bOZnzv/3nBfk9",
-	"EWQB8yYqoRm77QTAxH/jDPAp+7y5C0MJFJJm2evxztGPbUjGu7oA9yZnCnZKECqIp1f+vkXBhePoeMuZ",
-	"PYZor0XX+bA90arJeA35cG7x8YE1XBLccCtn+1N5n9JUF+1uyQU+GnhPq9P47vS7lySRpVZSWjwqFhFv",
-	"/1ghkE5cGLaiXN/bpz0Fs3Lvje/Zx4waDYd5mFCRcsObm1xoXE9JTAst48jmpfjHHyiiEpmzY5TQSz9E",
-	"a/KDVOTUNdhEg9wYpbhiotn09K1c2HuJEZJwOVPLtYU5IRlXhp1LooqZ+Ue4pMs4oA/NPB0bNh9a370f",
-	"/CurF/CtywRjpDBj6oDeLBix+Y9gisX1trcPIqWBvYSjGfof7nxcgQ2Zqksk3dD5X1kuh1Mq0swux+o2",
-	"mEeqx11hDoBN2SMLlhudd66tNzWXaZFwMSFcjLngmrmddIfKunEEIzSXeLQ2+7oxxxBJlJdHVqWPqJoY",
-	"6fQye7ud9BDuf/PqN92iplNbX76ayrVKJyvKRZWRgbBctXubDrw1PdCGvNDhVUUv0zlWWlIOTw+jih5c",
-	"0QICNXVFym40jEEKsngurZ9wm5iQNY7cmURHCxxOOpKFbq9ljKjijZECS+tlRdangpBJLshC5qlqJA+3",
-	"0tmd5eVmnlPMZjRfom4x5zlT6xUxbuR7esUUjtsIiOVNfqCINWATOmE147EUbO0CrpFmAqWDKj0M46ra",
-	"06Pvw7eaSVJGwdtbCZ2jRhv2BJzquOrwbTKBrxiAYQfcaYgwPiZY4aZpBXu99py/4GrbwKdbH6AtjD61",
-	"o1RnsYJd62GyxkyJ5ksn05hHybw8QlY6NqsFX3dvPjJNW2H2IBxFm7VGrWU7++VrwVbUrDKJPuV0IqTS",
-	"PFHHhAYfIWLIHzGua1mipCMk2glkToQkuZQa9J0RTS73Al+lfQDdZD14xPkrUfjdlC9UQHZ3o3krEC7N",
-	"pKBf5K9emr+lrpLUnX6tbGIQesmVdnaxW3TsFN7msBPUSG7ZNLDJtQaUnE5uO2bve4a9bI4MPuj1fv5b",
-	"p7apYMiqLPXufuXjrTVNlBluPR+U2lruexCIOwx7bk4az5bEvaAwARteuOVMUd5aZ6aoK/GgIByTHt5n",
-	"d9TuIj4Iz1b93gRL6YfqD3GwTWvWMDiYK7crWiEQjecwuFBrCeqF14XrVhIISQSYhi45KSNkwMEyx3zT",
-	"IVo14mMfoAqRfYbSdQO/XPVpw3ltnAkMG8Nz2wZclGN+g62eu0aDn07K9oNvz31XfvKWPW4btVzxFt2B",
-	"C6hibm/X3pjyjKXD0hO0GsBcGlUw5xDxQDg66uZUqTDsSuY+rGi3uzHAtC5I3Jklezsr8l2agW9IW7mZ",
-	"Zm5rG7u9+WnVfnRLA5DV5luaDj6fuh3qtw0qavXcb1BZmyjeU54VzdYk9wsZQ8A8oOVwo2hCfiEXVtkl",
-	"HR/n9ntLDjE44//+30hqm9g9JgfIY+hIMQFq6u0SCFvEQT0LnU9byMQ3mYS7DT5ymynxSbkPm50hTjjH",
-	"4ALrDLI8TFWo0hbker3klzNEPGBNCW1reHz5TtMBW/GlUDFhQ0zYgKSdmxTr8tGGnyoegVZAbOEMwvcD",
-	"A5HtsTbWIHGk+Sr5g9dOI1uzJe2Tlyp7tarfuZNjOR50EJGDvRFViNCw4i07tobtpjfr17dyKTd7IBuP",
-	"zcYFDJDMtljC8iK1sgbUtqviIXlk57Q+baR+jNtZet6ya91g4UGrG8PwbJvxnXNxSagmI6mnhIlUHbvY",
-	"77TMzsjkgikMtZ7yydT8bX3bNGf2VS/VV+7S3YzXOYYhOqnsqLbj9YvVtPffMprp6ZY7XooNTq6Wl9hN",
-	"umwpPWO/r/+044Zwji/X52C7ahp6cCubooFt3hwVQXB85JxikbVLRi4kJyeKzuboUw2i3L4+bBXk9q6O",
-	"utiLvn74sTHsrcRcfJMzI1Lc+t4Fcnx74nWDTRvBQKx2ZS3QRpEqFEuPiZCLOj1qx2ur4VEbZc3ySSOf",
-	"wp60py3lkl7Am3XEkRvISz1r0QuJbhyNx9CGbG0p9gRRYS7oq/Q8h6YXDHKMR7IQaZiwFpE4kwsbsmio",
-	"UOyDEBusePh2szVrfeBze1tWG4SCdcHSW5o4IB7axkg7WcjNr2mDXlDN8Di0A2m6TUAmHhDwmLpkMEzL",
-	"NDcCkm/4lWMg216eW93zNNAvNr3l9ZBW6nNdEAqAUDfHkrgHG7W38p6VLTZu5G2SGZ4yzRL024iUvC8o",
-	"TMC6ctATGWGwYz1GQgHq4VyTOMm55gnNhqBhxaRDvUd5d1O2X83T4lpJNmeynF28JgcHjw8f7vWJe8fh",
-	"uToviK5nuVwPk9ua2CuTu81w3FpEZHnrUazLRP9WLkwfS3Tcu8UFR8ZiujQr3l2T2M5s+kRzQm44KytE",
-	"E3zJDBPnZ1b1tmm2mWxwlZydfkv+3Cd+cHj+IvKw+/Dnv/0///P+xa07e7+2s6YTH5GD3id0uEKQzSU2",
-	"Y1g5TNG6Q7+6QxvzUl96e9xWlNulqN6IA1BHOyqp7hZgApaKfbwpOryNC+vmqGdIdLR2CcN27CtbyGS2",
-	"j9GyNeiEfaXa+5r7FzS3YmGpBdaY4U/4FWtuakavhyCQDumEDaeyaIrhe+VpMPpzSSqtf3TO89s6H7cM",
-	"4LVp06uGJutzwJENuRiOXTDKqizW3q58B7ZTm00eGEnDVW02ilZie/wlicLbtn7KzbtZj+8pD+Z6WnCL",
-	"SAfU+NpfaEt0bkIGcc2uH+st1btbkC8UcD+RelUUphvMMVXK1s64Eap471bFNUyE6XWfPOo2UJKbrSYt",
-	"KYYRLDIpJtauHhrlHOq70nRZBmIZ9RfZ5x2Y1B9/8/jwRoDJW5Gf9uL7BrrUjAtCwVXHxcSuDwIRLSgU",
-	"gECf64wuyYiFQdzOiOBhxuCw7zZjg9wdTWsiXf5SNF5Vt9o14GfMGYjJkvyejHrkd2R08PPfro9JXEkm",
-	"sL/bn3zCWTwQ1ffMv/2f/3b983/FbOrHh19/vdevIRNgyxAoGXSxE+34dlsa2WBOL1xrwafXrkX47s9l",
-	"sx+jndeAetwUivXDVJKcosJb2tSOwcTmT5arkbIkNFOSAN5N/B/jml2tbQ2TqmHtP4Jl7aD/TbNp7VMN",
-	"av+YVqpNtqlwRcpYmtvZGO8m9HQTWAKavqq5koVaFxizKjQDyW/v/Mbnb+UCx1e393cjDthtTso5vNmk",
-	"XKxxxzeFOQ5r5hbr+64sRH1yNYnPzeCGCMmVgW99EzdZSKohh8jADVFKq67zFUwt4EiIqVUGSVplxpkw",
-	"zDcL6VLuKgA+pBPT2YhPClmooXk/vm0OWWida3GyxxmdNIgwMSAdDGFscURigEQoP7JrndM5FuUBiCV4",
-	"OpMIp+Q+vTc/CTaBiC34W8LcjDxQtlyd9kB0LChDmGfRuGRGr6sYiY5A5xuIAKhnNyJxIawJd+is4XF3",
-	"IC4gh9dZV+3ZK5lLQvN8CSOGrQVb+EDEQuqhM3uYbYgBxYjESG3xQMa7N6HXNQcXrTzGA/P/RtnLPRe8",
-	"MyzjjBqtXqVnwKjIcqQpFz6xKB5zlmUsb04bmjEqhlsGUDq3YpN6DRWh5Jh453eQU0MxODC9OSW2Boq0",
-	"6rabz3N5zWemfVVJy2v0jTjQbXedgrwCc8WZ0tDUXRi5eNoQVdmM8XQFIZN4Z4NFre9JQAVWT8RmmmrF",
-	"hu1o6j+SR2CzH8AV91iNFH1+Sp4cPvqG2KIhBE2KatUWv87cjHCv4AmFgmoWHY37RLgIeMacSesrXs3B",
-	"X5Nl+lxC8BbNuK2xEtlCHw0VUyzwZEsRAab63LzcSLZEGQe/thAKmVPMaG8I9YEHrFi1qZJK/M97Vuze",
-	"OzP8RkvyvpDaonIirUcA2Ue93lrcxaYAYNPPt2/fviH4ACS5VmJhHlUAsQ57jcnvmusmbKSLqcw1URh+",
-	"66iMOz+mlcahalu0ph518N35mdOFli58LGzM0e4iF0fAsy4Zm7P8yD5zZE9IbElpoB5tFu/gVzfHIEZx",
-	"g029cnCOfmp5Qd46SE3u6gN11wbXNQVmmPdrR/6IUPJPF69fkTf4kuF6EhFSZLqMSLxv9GC1Pyh6vYeJ",
-	"gH+Y/ZTIrJjZr+KBMHfz9OJ7kOJifILbX4/s63TG7ONwk2lZpRAFgs3r7Oa1cWXPHULAFm7KH0KpKSqT",
-	"Z2ykkV0QF2yEtkEoaCb2IOe1rGBBySij4jIEjQjShTQD+MXdmmyc2+JHmLxWPQqfEh5w5y7/xvVGOGKj",
-	"njWV7prnEu3bNIvJYsqz0D5VMV8dkxihjVFqlBCcoQGu0+NRGvosZDUjECOBXUpgGQ9wTGLDQKYsS+OB",
-	"qOkhwFMwDSCyLUSkEGOu0QUpc6KKOcsVS63Dkw5Eq267bhouUM7jGfNkWjU1BWuDiRt28jvRjht5W5Ay",
-	"7PFNpUH75XnYrv3uB9887GApqK5GVAbgpi5EsmMNjU5xsYIgnvxE5jn6Fne3wXmsBlTurf62crzPQ3Gn",
-	"nrRSyskoAEafhpTil2g7YxEMsshuh4m/wfizTaR1QoumrQ1g9AGLDe1YXZpWIPMhq8d/Ds9/DFQev/dh",
-	"483aUIs0wpvjJLY0L11yLCbqrpp1a1nuzIbJ1JD69tfL7+Kpbyj4EojfqWvScGCzdEZjV44stvPOVIjp",
-	"GpwGKJiLZMfykTFshS2J0JD/fEM4ORIrP9L243MGKbsvflu50F8fNgJzbZkgA4dyuEb3V6wh7uKNtPfb",
-	"MWDG0mPChVkdQKAwKgUGfENRgQqJWj/udmY+MyKbTg7nz12++iKvnI8w+t6vaDj/IMlmoy2xctOaubVp",
-	"/jlj6WfIVN+yIERIKxt0qSlVw5nM17juN6axv6FKEapIrDjgSo5tFdowod0cCh+/uXmf7bzqWet+gDeY",
-	"Z889BNQWIurbqSuEDVUAEK5p7rN3ElYXbrBm9ob8nfVBJ0GNEV+w9RMrnSS8DTIersxT93SFcK0LOVkN",
-	"YtkOgsCPLbiEN+S81IYZsBkrqPp81tb8xTR44l/Gz+e2iY/lF7dxrN3F4n9q4kSQxqGlg5f3rn6Me7c+",
-	"jxK4tbt+rxp3pcjY91AGv00aXI26WaK6xv5hw5q4uJLZldEHDHfhjZhkbfjaSloNbvSauiqOWB3s9RWx",
-	"aM8RMUfb/xQWDWj27ecWmvoGv6pHsa5U99h8gaBpP4mg1EW5qM3bJbbGH84LYch4CS56BwnZt3KktsFF",
-	"dTDB20Kh3iI0cC6VZilZgyy3JWDMeSEQHbrhpLoZrPEea8OMzDuVBXCjEyEWwF+Q0ibqqjUOt3gOvf/T",
-	"xetXgLJtP59efA808rb55+0N7KXDaNt3tshYl2sjQD6B520fJnFeBPERDcCJWL+wdXMO5vHGgL7tEskr",
-	"Sd9+5fw5XR/bGM6hXJyoBCTaLMEVwumBnxPvadU4g/xzznKXWtfeorHhlre9SY1eutYL2AqB/g6S7u4Z",
-	"kGHbOJTNOTgrSAdrVu+2Ua23YJCfk1qGxG/TWz5M7lMom4/XrVv0NpK71UtoNO5leAnBTO0Lg25FHxvG",
-	"9Gi7iDRPOzdQynJCa4+XD5W6Z+q2bVBWGEbSKEtvYWFaEWStiaVlmFXJIu/OspuuRSY5WMf62xS1TteY",
-	"/gIL+jaoyjdz8KaswmB2G5fzVomiX9I0cRUr92Nb/cqGernwLZb68nelqo4YiIu7VsM2xrreUHysMQyp",
-	"6u+b0CsGnkNIncSINAgSunUU4W3AuqqqXbOiZqnXJwG9e5vFatQWSaivvrmR3rxdDen8JDSklqRqTbQl",
-	"1ET2IVgEnjKKcPzm9QUWR0TBc/8nnn7cL59UWP4H4hJdnGKnPBYNBYt2wbG1EsU4EPCarRSSszEAeId4",
-	"IMe2FGYZSFZWsr1lvGOTCdhc7AeK8DQiVFlYNwj2HDOWAvCGIrytX+OO4ifvPABys4pc9a/fi1frLvji",
-	"Hbu7VqI3b0G0Ks7PG8xXuCjW3yhzgpEaZsUR8de20t6wdQeVEyIMoyBx5afVYmIWmMNHMwM4Bxct8eO3",
-	"9rtVpetQ4mkXgLpNaGv9+oXBrlUnY+2aNOz+drmfoWjxj6gabLpfjWk9W2kD2Lu6nWK+rQ5bR1W5txym",
-	"i0RirKWz2+aFUEeLnOsgH+XInHJv+zkq4V3TGRctzbvQ0Xkh1A+2bfwCOzjH9uErML8oj/YK351gR2a8",
-	"zs54h5lWt0DB3oQ1eB86V0mRbsIgXrPNFfPDZ1C9Vhb1BsdU8HC4vJ9VD/vURQb36KqTL2eMaHatg9h2",
-	"yHZ29X+TKc1polnuIXE0HWGtRZT5DKtLaJ5zOjFsWxe5qCV89h1FWJPx+S+DwXWvt2f++9j85w/mP6fm",
-	"P8/MlwfPB4Prb56vKSX6Vl6y25rDb6FDtZen1mJCKEMztuArQAMbGAp44JrldMWSnOkuuZjKhSAQ4mvO",
-	"yrHRnRMqrMYBeP2gYreUTLDHyOVZ24nciHcLW3Q7zuQWsZ0+Gt65hjgAichBVJMFzyC9tPRkHhMFa2WV",
-	"GlQ4XfnwIuWa6JzyrPspG1jyyMNNDBLkuvcFsz831RCpbkDjmudM3CUbciW+b8RhMP3+wT18Swf3TbUm",
-	"W9WFrFZBNxdSNlcZMwdCS3LJ2Nzs+IyLNIAA5opoMyfSoSSImPY1zyMXnlGWQwfrw5bw5T4TodUCv/FP",
-	"V8CMWx1HbGBd2UWdFyJpLvbxNi9YadhacJHKBZmyLCUzjEGnghxEvV7PrQjUtxUZ4pbKLGVK2wcA0Mus",
-	"cXO4yJWLo9nGrRKG39xoJG7GAy83IUAm9ic/KF4VDDBcMnfGbpDVq3fkE0KFPinsxyiEt9TjRRNSdbTT",
-	"VOYS1YSmIpcdrKF7sC4dxd+wW1pIFcswEWB9iq3rwV9hwJmDYng3c0RYP5g0VkArdybse+3+vwkvvMVH",
-	"MZ1lErK51llU/REl1NKlscwyuVBhdItrBJR1I7Ot1HAL4e0z2TYQvTrwC9tL9duzoM/qL67i6UW6+tOF",
-	"H031hxcSI9oDovUZfM7bhvszQ/GbiabDz9E2d84eMv8GlofhyrkGxj7oziUIhdR0xhGDBx5Wa4B0uBiG",
-	"3Hr1gdsFGjQjRIJl3O3WAzuNTeALghlOatOXoHCVkMQf1Nu6Q7aH46jymOZER+ViQ/2zLggz2LP29Y6r",
-	"AY4bGVRo7qtY9xy2os/yLEM2ylNYPQOVuTbRIzjG4eUoCug51NF6e0/o3vhk7/m7nx5/3As/Hm7z8aDf",
-	"DN/zXaNx9oSAebYQRm2Rqc+gnU32X8QRiQv774/z+exdHWboYX+Tzvnf7f0P7346iB6uGU+1wO2W6ZxQ",
-	"tvZgX/1LP8aaxgBIVUdMJRdPI6I617vk9yTpkd+R5ODnv103QMf22gJHHrR80GUnbeZvLoektwNNNx2c",
-	"78tbV0vvgghqi5UmlqQs8AMVU9z1t/HDa51hlepNVLnCKy25lR3dG3zRfnoO7+PYq2Ujt60N2hr9fPsi",
-	"dvfr223D0coU8IYYkfGY5UwkrLnK3G+fkt8TLDU3loXAAnO28ODuvv3jlmQeGmxdhrAtBlB5J285rO0T",
-	"A9uWJv2TeX5z3UCjkzTvhGFjH3779AOhRkLEuv1+HR4oV2g5BHNtcTrNRVyHJp+zRF6xfOnG8wmF/z7Z",
-	"+1kmEKxIZDZjGpbugSIOnTCRM6ZscEIre1jApS21vNk06w5xbbFW7lW4s37R/cUM8hy2dqSF5+vzxRFb",
-	"Z41PfW1UymaGWTioJ/tkzRU8YpDVaLgpxhk04GgGOmm9OnD7msC1Da/V461P5waVf+VOr7JMLrjmNItJ",
-	"5+z0ewwDSaTQXBRcTGLSOTXfJjTjI0vnwhGFnNI2hKfQvt+eZfomz3wzlQMTNFmb12cqQBxOu70VpLq3",
-	"N0jf1S622NpbxkVvrC7hLCdhfYmtqq9sCl57ZQsC16C1ECWF9CJvAvdREUYY/7Racq0qyn0yo/ysvrk2",
-	"ZN9yiDU+EgS1PXV1/Le9R2CzWpOaLDVrLjpPSeL6w4jKSz6fs/SYMABpl3rK8gVXzShIqpgN6UgN84bG",
-	"/9t//vDb82cfnMZTKUXNUn+k1YqA1jScT6rK+0lwwiF+cDDdyC23Xdv122l7ry7OC0aV3kPzmyLYh+o6",
-	"hZEUgKpHrqwCanVH1IcsFNBAlEh8F0/VMYlpoWVMkqmU8PZMWvgp2ELl5D41o1nGFCBeETkeCDpSMisA",
-	"pySsBK5u3DgwRmHUpRoIBDQoN48LEuO8hv5LFVfBZ4QEy8TB/jX+91/68O8S/2s/KfjXTK4l//LL/gqb",
-	"95/PxNU/1z/3a1/8p/rn+gMXlS9OYFgfwdKcFDnXywtzomzNJUZzlp8UWF6txunN1zLnfwUqcUT+AM8i",
-	"zU3AGWlBqroEXIfqiMRl3EsckTgMfAFAz0roC4B2pjMu4mOiGLNQc5CywqV4oEh8veeO+R66EO3mwJUA",
-	"8gFDKq/9VOv5zsePYFwcy9UpBXBmGJetKsA9hYAjldGRzK0ZIJBj/KmKzDFXA0ErP68kmUWukjDXPkAc",
-	"rCygzjxQpETPH4g5FPWAKFyiGBhSLTJWBCGF2FRE5pnEYkBXLFdhsK+Cm1KISyEXQkXkzycOCME0SUXF",
-	"OzwQA/HVV66KqNkkF4NLNaJJdb/6ipSY/YQrX9cmnMtAAPDuxPB6KLzDck5d9CHNmVNZFElzuhAIGTYv",
-	"RhlXU5aSScFTCv5+aKtcd1wcMzdtOT2GVU7MBZc5TMl8YzXDi9dviKaXZhlzljDAAT728rlgLHVrMTLc",
-	"5H1BM4zbn7NcSeHQqawA3yXPaDIdCAu+JdIwpNpbxXI2Z1QrNLAaSuKErxhW9ze/IadSXBn+LYUaiD2E",
-	"j0P8RAw/NuujBL1kwwR6fcvdt+fPT8nDhw+fkE6MHOWIeOEp3o0Ggpgev3t7SqQgstDzQndJKSzAIca0",
-	"AzM8V4TR6PYEqZLqmhEhYir+ODbSOCNnz5492/vm0SFBBqa6OGwbi4FYtq/oKwh0FfDO8tgMxzqTbdHs",
-	"EsqNK0061FrTsD5LaD4rayVR00qFjkPRGO+rzqXUuwB6YDhqHFkkEkqUmbVgGczIyrUEGZyyAejE3gpc",
-	"fUU6cZPIcoSo/wC6S4iToXxTZpGSTCpzAQw7zLKIKES808irzPolVCdTcIIssTfTFvA0c6dzM9rUlhaH",
-	"g5PKBGmPXzMkWCN2TJKMGwGAqKlZMtOQ0jzLCJ8ICTsGk4HCU7aSjJllRAC9hRhOmBObeqAITVP7Bm69",
-	"K3hekj/lC08qV3lSRb5kqHAIx7AScALL83ZEDgzL//qQnFycnp2RjGnNchWRlE/MNYUo466h90PznyPz",
-	"n704wilRhNwEyCFqXzXnC94lHRR/SFwe73i3S74THIKhIagL/RWmtSAIjOY+/8BdSMPPTCMWmg7mBGxl",
-	"IJAUxvtXBzHJpRE1DNVQZAseeGKhBiDGzCyuYAMhcww6wH6OzEA+4AfyAax6H8gkp2aXPwzEh729Pf9/",
-	"82DITsmHcK/IB8ALQJYFeZSw3XaLIrQtwo/mTkX4cAWYr5SRjB6/D1q77TTk2uQDeXH28gI8XxOHov0B",
-	"20du7nlSwIuiGhx25KyXUFyDmQvfUH4Du6/KCOSD4WRK0/G4sVvkbiVrU8ceN8X7Jo9d/dlQos9ZIvO0",
-	"sibKjgCFEvKBwB9caWBKZtogQQJJNd0XjgHhKGD7oY2BeFaRZUjGlUaGjgfBliVJZxzZLaoVgHxprutA",
-	"NIg+R4TaEzaVGQT9fPWVITNSsK++spLwzFBIaFaztOtmAkDmZggsJezaSORcZ1DcKgciauQTSFlSnqSZ",
-	"px3Tz5g23Mlw6NdzJk7enBEnSTq8GiBhckyovULlzA3FLoXMI/Lju3ggOq6dh90eGn2VvRS4UBCMY27H",
-	"a/NSH1bXvHL21DBVwRJNUARUhlifOHdzRGY0MwwTUSqR5sMpuJKXzG6QGdFh7+AYWRZ331pOY4Q6u1I4",
-	"IHj6YZfE+1MoAfxXQ7v2oYow/jljOueJsqkU+3LOBJ3z7pLOsnggQPYQ0nbSid3CwULsOsL0DLQZR4UQ",
-	"S9xspCAraNGdGLYKD+y+/fZ3f1GQ3oG0ciBii5trKGUDpnOM2lNs5ZAmiOcjwyQs5O1IppaZGfHJjOjr",
-	"J72DjXC4rDsBLhrv+xu339+vZqOQTjzYGexAsVgI1JrKDN/fPcbeTy++JwnLMtNta4DdiMQitkhAWM58",
-	"Pl0qKAgJITQdEDUJmTKaMlhm+Ppg1zltbUff7DtRL7bDKUNazHhuQu51zb0vWL48Ahu5Gduc6ukRT5H5",
-	"xTiIo7OUzeZSM5Es9/7ElpB7Zy6fj4CdcWXkW2HhgMOlh4ZQ4ObKWURy5KsWyC/et0ftpbseRC2FpteR",
-	"RRA32pPl8chtg0ACw0cPe71jPDxIuLgaCCMB7dnWRoUDWjaSWpH5JCUj9fCEkY7RP2zWf6kCeaFnIMyd",
-	"M/KHv7au9DUlOYMcQl6uEblkS5AFD/t9w3cf9Xqovhi6MRADjCcSNMOrNNhB8jxlhrc5qPD42JpyjIA4",
-	"MQOxJ9hKapk0R/iVBGpvOrMCNfqKPSg5VxUpw6tUKDw6WaCKO24k4nD5pGAgxnq/Fwh+QLUvIdYElN6M",
-	"J8ymCWK08Y6RXXPONM2XAXh4qORi3IWyqfHdXrdn4SMMjdo52nnY7XUfYgTFFOwBjsqZvyesKdRBqIUR",
-	"r/q9XoBTPM9lwpQCopXxK9Ylr0B8cpSv63FnuBRn6c7Rzh+Z/tZ2VbNs9ns9W15FOzjYgOL9xaYy4kG9",
-	"yWZmK8eDRaA2DximWY1H2F9TM35cmNkpaAaUeic0puwc/fgOzG4zsw1HOy/4FRMMXPkacnR/LGeu0A7j",
-	"eMbaRX6TS3P+WaEw5YFdzx1gJ+qD9fU9xkcACRqYpxFvDffRC5lfoonNYoEoovNCaTxTK3vy0o7sxj0x",
-	"49qfZ5TXdqPujVxZeNvDfSx9sGwzP4+1mxBy6rU78XbKiBNWvK4WUIkFVWRUcCPV5nLW6tjb5rY79m6Q",
-	"Wyx0OHQjZ7nhR+Q/nbx8cR/r/zbUaDctPYpPLWmMtbmnVFPDzwm1vzobkGVZhl8WeQ4TfNR7OBClW6C+",
-	"K81H/xwH9YtQI+jbMCA4VrfeG/PWw5vfukCu/J2gV5Sjd2LTtp5DjsENJM1DC6zd1a++Aivx0Vdf1Q3D",
-	"KzqfzJ3qAkwVcxmJYFBmYMxzIysApiTGisRB6GEMBhQrylq2L8hoORAxT8Mfu+Q5z8BSkMjZyIiAICud",
-	"vHp6TGJzmUEw5cJ6D1G81zIeCO9RjMhI6qmhtZURdMmf2FIxgMzlwhoO5lQpyyoR03gg5nTCHigSB/C4",
-	"McDvur9tYReAzGdkjMM9rr1gZDHwTkm8J5B0bpo2khE+ZCYi5/R9wY5B1qga6VKGIYsyHwj4BRy4NLUL",
-	"AtfIdR6hPtRrukIvuNKnDtbMy8oKkqEMl9gBSdhlZR1VcxvaXaDQH/oxam62zJK4uzZ9DvndNenjYts1",
-	"WQlyXtdmgIrWqtEAbG2l/DXNM25uW+VkR+V9gGjihjGYm1MZQBv3/2r/L6hu6N3fvHW9a3kHfb+hE0YU",
-	"/+vaXlwx+LIjnxfxqBfEEfQr0QMNGB2rfRumXb3fvtoPkg282msG5jG2Wx8qBSz93T0yPTi5EHLTwPde",
-	"CwYTMrNEHgC877AN7/sD9UWr4ZWDm1/5TlBrzmUpvtSCWz6X+YinKYMghcP+k5vfeCvlSyqWdnTqF+Lm",
-	"nn+fYjgpNwrsMuDhll+/i3ZWjI0AYdAKtaDK/AFX6B4kAKzoAPr3mOsuOUMu5V2SUiQsKvmlhR8ytyIl",
-	"XAxEjN8MrTKMaEeQvgUG0Jy5ltbIhojCucLWmjamfASPvkWeut/7tU7+x8Ijv/Ir1Tu8+Y1XUj+HcNR/",
-	"0Dt44oDhzBE1Wgs49m18APhvXMrmfd/OfXCWtLqjm++kM3UlRhJPsU4IoSNZ6LB0lVXS8kJELrUWBHjr",
-	"UAg8N2A8ms+ZSPekyJabbuIJTOFXeR1haC/kWo0ci2J8uZK/gisZHD1wXSWWyLsbaC/Tuhu4xZXzlZ/g",
-	"uM2l+qSLh7HwilCjEeOoI5IzG3rnmWAta8IKkgOBlfpp5oMroMQLsMqyDFjGBXrMoIbi0vBrbGYox/Gx",
-	"URQZ8Q15Puoi4cGToOkSAmOs4NEl57b12jCsbxbf8J+M9gqp7S5YxtZa7zBLdqCtgYDweohCN5pt7AMO",
-	"Y9Kx/p/mmma7lgD55bEOk3iO5oGhXfxjWwbJ+rNdblwhHijn0RiICdPg+UD/touP4jryjgc32wfKhyXR",
-	"HNkBIBNQNRBlJb0uee3gCKxNy5JTPKdTygVJqEBslCuuWEo6h70n0UCA8yW2+R5qaN+27p9zSBXtHPb7",
-	"tq7rKId/nJxUOgY9mzLtHfsoroFASMuz02/Jy4Me6fR7/f5uZO0OQfDWxes3LkvFEPtdcCfG4NkZ2q2L",
-	"j3AMuK0QKYScEL4tA0c5RFJgGoUqUSShQXtY1FCB4ddsm2CL+IhQTTJGlYZXHUYGRiTZw0YzMEJiOzN6",
-	"PXS/DMc5hSAGbGYmlSb9R+S33qXl4tzdUAaClM2ao5aZU1qdhBtCIguhocYS+HxsU7t2FFwMMdxmeMnm",
-	"OpxGJWwweDC28TlmDB2XHqT4deS2aBfhQqgbAfY0knqKhdOHTKRqKBhLXRnGIzsZM9zKXTMLAPYu60C1",
-	"VT/dCXdlP3E/Bc1zuUCLFxZZpxrfNh0egwnKNGKjbHAsdgQRRHUZxq1tMo0LL1hMlwhLOmGC5RRCfmJX",
-	"PtIbtGCRd5vkB6Sczxw1/kQJAtjYH2S6vDPhwY/Ms/xqqLcvU1cRXg4+jy4Rpt+h3xr6fyGTNTkbb6ie",
-	"hrWysBhXXGOOkA5dnWK0yc3x70xw6rUQnE6lGGcWDuDwoMWY3tBlJmn6VsoXNJ8wfO9RmwVQxRwhil+y",
-	"lNO3SwSEOuz327xsvcBG1nomNNfLf1TR8Fk9XMzmEYDSRp3kFZRbcSLj++QuxMV5JnV3jjkZ92FIoTMG",
-	"wXPgbIDO1NUktjN78+qPhM/ohG1SwN5kUr959cf7VMFgDPt2FRpMuiMuKJqz2jhCYZZflK5f/GaZgxNo",
-	"WxHBU3TvRg93yu/hSl2UgbReDHSyIZnR/JKlVkS2GpqdOWR1SDHmkK4wECMqUlQYQJMACCIyp4JlZMQy",
-	"uQCFBa+mjyuiGB8CkT8DIegMhExs32ehBBkupnXrJbrpel98/xmut7qa/O76VpENXy70r/RC47m5/wtd",
-	"Bpu3s6lUo9prd/hsJZ3KzKmYEy3JQQ/CC23uQ5DHZScMqp5RmAeCltohBvHibS5vOXGw5EYdisvv41J7",
-	"A+3K6Xq7XbISgdglb4KkL0hLqWdmUbF06Uvg0Z8CZx8jMDzVNuhbEXRCm8WwROG4gjIyEKB9KVDckDTZ",
-	"aiBE0aWLhMTEnwxSHgqteGrLadjUOJYOBGqAMkdCRihau22AgrWKY5rPmGvSKfPdbD8Q7TkQh70n67W6",
-	"YFF+dXpdObatFLvevQzAlehv9sZaG9bcJ5OA+cxFu9pCrl90sC862L17rcNkAUhVc7mtAXsJuUBLHrOB",
-	"p+S+4vinmuhfSkBCtOQNsl7rhmXDWmKbqmQZkkNSjLEWD7rW0IZWFjO3tUVQIcUC5E34zwTLZION/IYC",
-	"0tYIR0tTWuew3/dEWQq22yUnFYaCwKeZFBOWr84MYsSeHIEcC1m3XJExoGkNxDkAr6vQRQgJ0kIukHmq",
-	"JhKPdQzuwgt/98S9WnT8MxP2tRa7c1/Z/gux/kKs792XWk+5vFd36gqy0h1r9BjZUMmW9WEODQoARCDr",
-	"eF1M7Pc1kKZfYdDCCjrWGqW7svBftO9f/t5935zR3RjOsME23VINj9qo2RUAmPX3jJwFyeym2YFYk55u",
-	"K12MqE6mmKgnBemEHe0e+xzxgZhRF5QEPlaHRGZu6dQITZ3aoKxrnFEraXkNfkSTSxTdSlmlM2MUTAOx",
-	"36Q4IkIOhC/gaCEJZnOATeLapmBWc1+PiANVHAiAIAWsRQc6Ck389unN4KTkTENiAQBAMzEQgKL593/9",
-	"LzWHcQk00w0XeahlxnJqkRzjCAXEgXCmiJ//rd8jv3XA7eS7C/LszQm5+GHv8eHX5CWGlzzu9XpPQxyc",
-	"6j4er8YG2LgUM/ucp7BGkYsTG4gK7At87WIJXNzYSZleCUvrMFIx/8GJqUayVbC1Jw7Ft3K+IPJCWgAN",
-	"jzRaRS0gLvp8IKjRfW1BT0PsSSE0zyAp2CKdh41Dkq4PzjkmdCDccxiQADgzpmsjkLteXL1QG0GC9t6w",
-	"3WggAE0DxPxcIrKP89Ej9qQtckmhkA4zuoBQGM5gjzkW5ISFO+w9IdZk7FDf0cbjcpRRgg/R3QfCXp+h",
-	"kHro9ZXdyOs6ZRALYO0I4mOfvL+sbCSMUCmbqFmD7LNTqoZjruPdLjns94/MmlbW3GL4hLsZBP2YPitH",
-	"H9Z6GJxbSOanGCqzxsT0fRVa89elhjTBO37m8IEmwNYWkoQPEpWFNhf9i8ryRWW5f9HpHGUE2oyKU4Li",
-	"tJSgwnqPN6gyAYzP/k/lh49Ox7Ek8Z68/4EVx9WptsAHNT+hw2ugGjme81AMhJCL3aMAvdEV/vB8TKOt",
-	"HwgyvIvd5T6ccSA6Quo2zALlKfOw4zboS8VkUJuxiJHjYEmLEKyfWsEoDcDzcFYLinGEYJiyddqV87gQ",
-	"xcIYUJzYkIshABQByJMAi5sqkmmd43mESZmlDOJRu8TD41ban9FrbHtIJ2w4lUVu8WMCAYYr2w7Uq8IF",
-	"xJ2IsDoJws7BwLrksHfoq2hjcSKAjzAPggF/IfNmy5pz+Z6J5xJxurdja6UYv3NzRub6MK9t0ilXuclM",
-	"YmK7w807BnMi+qdGigm9LmGO6u3zBe89mcdtxaacnnLrv2jhvzgrWd0Vc1WpPZZ3qoLfxELu1i1+okj8",
-	"5vXFW7LB+x5Hqzaxch3GmFW+wlxiSxTiFfZiri7gwQ5E/Mdn2HVLjmmUCMAvg9V/cfbywgNwgVskuXTD",
-	"S1WjY/2VrI8fXBmHA+GzKtBFsl5HKOnhpzikQ6p6T/pC00C/eKe/aA9ftIc2JP/PBTUyyXID7btTN7XF",
-	"mWylE9QE/gyhFMI8MBRTHcTaaAkZQOv8Fy9t1/dIALCLTZ4HO/8v6AB377rLsgDtt3pWwlALdwLXnd9t",
-	"nAShiAF2UnP+SGLzGv1JPeiSN1JpRPLBFDHI4zIPI1ywWA5EWY8IrfVGvaufedc0ao7XwS+dfu9g93gg",
-	"GACe5OXUIR0xCkyseLvDoAzfCAc4goEIUjDLobNrmmibzVcb1wOIANYgFBk6MhBuoMIKJxjmgSETXJvR",
-	"9iBzMWcKrdcZG2sCYRrjgQgM/TEAogdoCGX9KOUA2itV/tRULmAKWQZ5bF1yYg0AJVo51vuG+XFhBFxU",
-	"ajuH/f4Gs+lLh55zH2IMNv4LCS52Zg00C3XWhGbOuFLb+WO/w4BjgcZSoG53aZBdPz68ds4Vk39acpdj",
-	"JHHAqfZ/Msfm31t21xdR7FcYKAiXx1OjqPS+hSIP1lnZlplVpS97pu9ACItcSVHpYWrCJPt4PTonUtIm",
-	"eLU51dPSsgX/3I/F7YSoOUv4mCcBOQtoXAu7W5A6V45oI1LWu1+EjJei5xc72y9/018Ltxu3v8pWzdre",
-	"udIcJAac25KYEgCilBnRHe/BC4ICkRFgPiAcjNEZwV0vNc3QjAFY8e/j3TpqzhuZZR7jA+rdlLBwjWCS",
-	"UA0kJh28kEdlRAsAXhjRt44nSWi2oEtFFNOkA+5ZCysOSG1QHcipu0pCSRO9Gw0EmPWmVA1nMmex80Zg",
-	"VXmogWHnCnXlLfwCSeTMFisYiOcQZ2JkouqIFGPKrieCDDmJWoqEHblmoSoJllVDHAaE3UAPCuN5GAuh",
-	"bL9gLqQ4L/DdYJwGYKHbvpx/yQ8UK210fZEHfIwrssjN78J1HXRnC99QxDHXRxDvBNL9QOQFhIu4/CKI",
-	"a+qiPBhHJLbfd2maxkcktoIiRkugcdhHU3RdQFO03qlpnwx/jXcB+bPR+eZf8D+Fg3BViUsQlRLdxAzd",
-	"nHJXd9Q/HPr8pMACDo1mh3No6Bls7irHuw1q4rFlSuVQzA1wj44ZlvBrBOs0d2h7WMU7RZY86PVqJSqj",
-	"X45j4uY8Z80BHiGq4z8G3tU/otiLrMUcWyj3VYlcq4Rd4ze3szvmRWtHUlCqaCVDGirtWeAk0gkK6ZWI",
-	"U5bSob9/DOFAgpVF9QyFQnNEDeDqgcf9DqRrx09LGnxEKOn3DgZixqhQQSGfCnGH6MJC2EwZEdRHwwIq",
-	"o0K7IEkcWVmiw9p+ZI6hh4ZzMgTDiQASyG8tYe8LmkVES0nGhn4jhM8uOqJ4lll3VORKYtnwxTCHp5od",
-	"eURyuhiIlGpaYnHpaS4XgtAFXXbJWVgAhnQOr693Xf1Da4cIAKJGbCktqI/FVgcDz1EYxzArlCvvhuiF",
-	"5iPGs7p9KqGyjp3FyCyJT0t3iF4ZHbEMkP9oroCnD0RnBTpJkYnEKjNB6C0eFr2QrkyZrYOmpmbLKFQn",
-	"LKNuj90l4WnFnBWUbLQFeX5DgoosA3HBjGizUqRFSzKjl2aEGpLxFR0zxP7G0n7mapSlULECEEgCyhYR",
-	"mMHwL9kcWZJHe+ofEogJwQhQazV7AMY5MWH5POcocVBy8e3JXv/R10dhXRiEWvSLb4TAOc0VwrINBBOJ",
-	"9IkMpKMkWUy5ZkTNaYLxnzNmjr2VneyKzqjWLN89xo4G4vTi+0pHwMfKCjnKw0LldIEFhEZLzbD23AWd",
-	"MXLJlpHDNfeTilDK9Q49V30qxbP31VcORm0giL9QX32FRVh0kYtyXv3eQQ0/HUYBQqqzatlSihigHW7v",
-	"OZtndAnd5gWLj4mQRLHE3AqzoqXHuDodZ4nW4ZyOoEpN+GBQN6U6XU8AuCDjjE+m+sjWmoCuIXLJDNjs",
-	"gQ0st8Kma0HzGYPQWQd8n8NMMMZa5gSA6g57TwAvDOd9znS+3DsZa5bHu4QbTaWE0hpzwdUURFoOHqI9",
-	"CL+2nZmzbImTISmmg0eGsvjXpzLDAKxLtvRXyxydTgz1QxJ1Fe8OhGGrleJ27Houc22e7JIfYJSnKLXs",
-	"vV3O2RHxL5dgfANhCzrZsogYMe50nZXjGSMdMyJ22TGUqK3UEug4homUJnZFVGLSkXMsILl7bJP/47o4",
-	"Fdv47qBbIJsj5gTRzmGvt+ttRHBAuSLfvX2+95h0DH1E4DVzdfbwOs5ofgmRX1ADMt3FmKfDg8e9gejY",
-	"qc/o0vTxvpAeDzIe7MTH5MVzs0Wn5y+eY80rJlK12yUvuIAEAjNWOJAD4esoQpbob2IHM4DbA3F0hsK5",
-	"OtyjjIpLaFOFP3RxXnjIsY4A9Gv1R9ywLjmF8l3KOyIRsFEskQLZmolY4wtKANooww8BFJ9cmI9WBDIf",
-	"asUUfUHFSy6gpuGSKfIBdBRoIYYP8H7sigC6ABX3sONrZd3LNV/C68CQypeR1VVeRZ3a1jysVkZzb4nm",
-	"qvd//9f/nfRqLfhiZf5liBEMihvbw7T+B2gHF2HIYUmELHspmWdtpi7zZeUF9wMZ00TLvKzWTzr4CIpi",
-	"B7tYMnGPvA7AGg1TzuWiS86dJOBKes5B+yQAL1ih8IAGWMYVmftqdyGUONH1BRfRUUhGdbWR6nbsOmMt",
-	"sJFaD8F6dVz1zbIiG3RT6yFYsd0uOZcLy2lttS/Dr730Y1rCqBazPhBnhvcg7Be4n70UaHsVS7gFICLg",
-	"g5V6v4ViJO6CeShlCZ/RDKFWoQCbo2tAhAVQqfig+4jtPYx3MdWJGLpWKCpS5XAaJdQleUVfGYJ6JsY+",
-	"mpVk/JKFtVgRZQwryPoVAXwQyPTiAoQYy2mg+F+1WokhskvEpVVmkg8UMXfaU1Y4Wfi6CGtApoVd0tQt",
-	"IZIa6opHlmuIv9uSxGYdrRxesndUDIzs44vwUhHQNOuDMMQOkTIhTx4eOuw9+RploaB0nMVkndtiiq1r",
-	"HeLxaH4eElnwzMAaI8C4WWOQEnEdO3//1/+CADdezMbS6JawItmSOVTqtQFX5pVHvZ4VufFziJGz60Cs",
-	"DKMHnoaeagumaprq93qReQM0FrjIiJuKYpItQWgUFmu/YlZ79C1CjTME4pNiD6kJOhGPPTwpXYIkNJIY",
-	"TA0qE/pZgsqEDxQ0ijVw8sDdD+Woc1sa0xo9HSoClDnFJe92u7HbN7QJXsMqHA1EHMcD8Rsry2DHAdWd",
-	"T6WWIBXsHZCOZa2rLHR3IMzxjpzWhApllR840h95mhA5CgMIPrCVkeDmeRa9OIh63UdRr9s76PWjaOMT",
-	"vSePm5/oRwfdnnmi33vU/MTDqI9PHB4cwBN4etzvEbz8qBf9sNfrHfbXPHDw8CE+8DDq2wVdE2NwXmyf",
-	"kRVI/H9iy51Vc505GXDSvBgILAOho50mDKFTa8x5n1g3aJvRBEer5NDrxnUHpZfajs0nQIBZhZZZImW0",
-	"/trg/FISv4OqPuUQveRuRicN86mlv6wbkJP+Wy/aa/fCx3sDHymCoN1oxylG1QZWFwI4P9aZT5FEmjnP",
-	"uHjBxERPQ4NyCMP3+VIJz4ubMgjBtGETB10CUu6rxHSMvGlpdW61+YFYseFE6I2yL1nW4JHp7YZZF0UQ",
-	"FtNkK1hd6BiMB66CIVdO77G9+cgrOQZ3kw9AQ+26arwwCnSbSJqRlBmjAg5Du+AdCJQoHDBzXoh/l7DM",
-	"XwJ3foXQkVJpqBctnM0/uMyhB6PYFDYdJl42OC+2qEi13oHh6I1zPFNnADyCETuh31aKqBUIQLOr98/g",
-	"dxX/dM4SxiF3sUrQ1hUqvYWsc16I+waRMcNaT6u/xM/8GopQWX8AHt47vWJ3HVhjQ2kq9VacfaV6e2zc",
-	"RZecl4VVBqJeGs6Joc6KpbyXbTWDI6gbZ3EqbLV4nnufYFjwpktOGqMnXMUdbHXCjYwCGqUdhItSrFSN",
-	"qVZL8EnBMkM8G67CojFBNIW3r5+HUUYD8ZTlhrbUkWwcpfnzaRR6IoqskhuuBiJlCTckKyivZyEIuTA7",
-	"CZ354iEDcdANellUhrg2yfuIxG5S8fFA9MMmEllkmMHnnay1xx/We/SYJVzYIJnaG4fhG9aDYRZjZii3",
-	"lhC45TPGTYvW8gQZ5rW2HnXD2MfmuBsPQlTJjLeGCnsaEKcn8D3guMLeojrqDLxe6bLjgYpXQWVyhk4Z",
-	"c3RGNLkEuyYYuQKsmoH4OlycSrr8EYkBU1KB+mQm/034bJCFb51L1B6VCP1KPhEfp7Z7BH3bM2ToVSWy",
-	"zofOwUGG1l1QlhwTnxtqaUm8nlme+5iIXyPPdKNbW3UFfv7CPn959nlRBYfCiM9C3GmsDfJSe4k/PfDG",
-	"EoOS/gAxCM0xpn1zX2kNYM2RDVUa99Rul0DII1fkPeY/ckvTRMLqfLRStcwCVzlnWWkR6pTcXS4EQpTL",
-	"PMzh8tyiDDO0FmarR5e1ysroW+1vzoN62O1ArA0OIptjg8yKVkk0VyuCBRRPt8vtAg6Rw2o+Yy5c0vv7",
-	"negPUG7AasEVy5MpWQeHZx0gmFZve+0oxgKSWBfK4t0ucWfBbngZQgwRDVqxbAwsQtNLBkKi5yAl3y/E",
-	"jWFCFg/f4ophpVOWpTZ6yPQFYPQeps261uzROPYOK8LTSkxQGKUD3gIwWhg5z/BEC0TjmJ/hdjbAeEpV",
-	"2Khl5W5qyIlxKXF26+3LdgE/iY3cvQHQjuoXQvy6mX95eQSPCs8r9Q9tGM2XlP0v5qb7137T1J9GLQPD",
-	"03uXy6+nbLYNN9+gF9uO9n/yPrmPd6wZj8ugBCSXEaFJLhXUWsb75jKWbUZzBCrtiuIMYCubmIfvyjJS",
-	"WxYEtF6eliCcOC5ETHEMALEky2CFNVI6UrG1gvoqWXlx9vKiMvUVxuYCH5wvp5oe50d0Nzly96kjVNfm",
-	"i5rwqy8eWL+ltHZa70xhgJDillpCWOxIqQKqU+RUpHJGMDK548OPD/qPyYhrtVvepQm/YgIjmpUtnKxY",
-	"kjNtUejAvVU6tES2PPZRFhBPAqHm4H41IqENWx6IKVVTBPgDc1omJ0Z4Wy+GvTVDvSckAWj7F5KjoO8b",
-	"HJ6wTVGp7tgNUFOIcBK/fii4L0LO/RMfuNuE4mEJCI0lFS2TZPFp7zpLWcY0a01fztmVvLQRW9DSsY2f",
-	"KqPdege7pUHaArJYDC8AHhmIIHTPqXI5tJtaeoVyRhOpeArDdaTi5lT5TxACvvvOqHYN7P9wdbVwWb4k",
-	"kv8qsH/NVnz6NcmZSNV94vQqC12xBpu3mhweeGigJt9AyLERwO35DyAWY5XJOYtt6NiIKhbG5UONAzCw",
-	"ocRy8RRaKr1EsXsjLg3+5XDNcwsuUrkoO+z3do8hG0vnMnOhqIoDpO3P/9YnF09JZ0FzwcUEMy1+/reH",
-	"8CXa53YjLJlP6EBcTNliSnNNEvhv5+ziNfnm8Te9vb6dzg9M6Qn438FMdbDXV2XjETnYe6iigejv9VVE",
-	"zvcOVUQO9w5QYTroXZMOeo92wT7BzEJSdCOWC6uqnj2FHjOIJAqBio9r4Plo8si4V1MGIvYdHJExzRRC",
-	"DF9xmaHZD6GXwLjp0PkDMKqB4OJKZmA+hDSZMWATYzDyQq5sDuAC29pdbguPBiLG/QBzpiiyzCIuY5dc",
-	"lYvQJScYw0sOIHy3nNVAmIN9TGKdFyLB7HAHACDCEwHOJ0AD6AiaQ5C6dmthGAKcSbhWxDL0KJAPIZIr",
-	"YdFqUQm5EAPx51MCjDwtcqYwNKNSTiIiOZsUmXmnqbJEs2oKo1nDRzaFVd4N8srnwFNu6sPPtnWsI6zT",
-	"G/9aQwTmM4hwM/QjNKJHhAuw8F+tDaM1B+MOIkBfoEOh1rv1L6zvXcs76PtbuSAzKpb1OxnV8DiqBDTC",
-	"BFMdEOl1o3S/N4MH9EPsgH4FOqD/maED8D6tsxaznEOAh1Z+xpFPXRBpSRq/QArcvVj0NOdj7SQOm3nv",
-	"LjTU6wEflhUzaszcbE6V895XFWiUuu6zojto26aXSqAB9hvXAnNLthCRNKcLdJ2Vsg5IKUeh7GCTadEI",
-	"i6wMkjkYwdNuvkCZCDF1rCiE6+wjglxrIHrgrWBg086YLTqPcYeQXZ8Z3n3eIIwYcQVGvYn5ra0G/4UH",
-	"fuGB/z/mgXxGJ2xfXU1+dz3LqgywIXeioZCDIQ1f2Nh9VI4uSS+G6QDtjghSsTvmSqZvlhQ510ugiiNG",
-	"c5afFHq6c/TjO3OObIf1+3AW5GAXWOI6qEcWhHx0SmVc7XYDFMVCqIa0teeIRBO25S4aeuCD4EbDRVXQ",
-	"pF2T1UbPxBXLFSBqWSjzoCR3NUE9bC9EPl9t9M8nrhAPGDWC8tVVqEi2aHq5DEGqgh9FPtAgiPvxfDMp",
-	"cZMqvVj32ko3zSU2ozIuqcQ6qVdm8a2/TxoaRnhlwAi2GIZetOA5KZGcyVxmPOEsXFYHetjQ6psztGqF",
-	"j1uzVgM74FdMMOWBmODPGdM5T9y0uCKpTHxeXCUVDrf13cf/LwAA//8=",
+	"7L1fcxtJli/2VdKcOyGgpwiBENXdAmMirpqSdrgjtTSkunuvBz2oRFUCyGUhE6rMIojpluM69uXuq18c",
+	"4dd77ffdCMeEw2/t97ufwfNJHHlOZlZWoQAWKFLds9ZETIsAqvJ/nr+/c84PB4lcLKVgQquD4Q8Hc0ZT",
+	"lsOf50zn66dTzXLzKWUqyflScykOhgcXLJEiVURLsqJckwmbypyR3LzCxax3EB3k7F3Bc5YeDHVesOhA",
+	"JXO2oKapBRd8USwOhv3oQK+X7GB4wIVmM5YfvH//PjpY0pwumLbDOC3yK3b2bHMMb+eMJObHB4rw1HTJ",
+	"zddLqucH0YGgC2g43TmU/5Cz6cHw4FcPy1V4iL+qh998c/bswIznLGWLpdRMJOvfs/XmQJ6SJONM6MNk",
+	"LhUT5JKtSYcS8z7hilAykzIlyVzyhHWJnlNNFvSSmV/MgnGWjoQZIlOaKDplJ0QxRvScEblkOTW9PFAk",
+	"6LM3Em62uF/lfIOxHprBVtadXr9kYqbnB8OjwZeR2Qf/2ay61iw3bf7pj08P/0d6+Of+4ZPeeHj4/Q9H",
+	"0dHgy/f/4cBvl9I5FzNcHKF0XiyY0M07xP3vhKdMaD7lLI8IVWQplWYpWXE9J1wrkhdCbdvFspPb7uaZ",
+	"7xyGfV6IbWcqL8T9nqj35n21lEIxOOFf0fQct998SqTQdjXpcpnxBA7Aw2UuJxlb/OYflRnoDy17fINv",
+	"YafVqb6i2VTmC5YStRaaXkdklUsxI2aLicwJJVc0KxiRhVY8xfOIzQ7Jwr07En9/8frriFCCR4Ks5ixn",
+	"hBJRLCYsJxOWSTFTEaGCFOJSyJUgU86y1LxiTxyR+UjkVMwYueIyo5rBr+8Klq+JpwV4b1LJFBFSE7M0",
+	"a3MP3kcHp1JMM5581NWDg8KULPLE0B+lqWZkKvMJN1QRfsQL3aFIpEjOrjhbsZTQLGc0XUeEjgT+ZK6A",
+	"LDShZMp1BGQBX4a7AQtPF8zcH3e3gcYozbOMcDEy05/NddeuxwsYRsrEx14QLS+ZIBlNLhVhV2b7VCKX",
+	"jGQcbjoXJL4+dFfnEH5Tce8AqIg5CTR7nucy/5jDdh0TZnruETONiUzXRNG1IlJkazIC7lQ+NDogVKSV",
+	"TTbE4n108LXUL2Qh0o+97oYypf44lpeEXXOlYWRv6DqTNH0r5Uuaz9jHHiCsKLtOGLO3Q7H8iuUPFEmk",
+	"mPJZkbOUZHzBcbQXLL/iCftG0CvKMzrJPvqAU6rphCpGEirMSk7MXtNkzlIi5Coy9NFNgyfMcHk1L7Q2",
+	"FDCVK2FYR12SOvSiVNO47NMPA6ELhvZWyldUrC1/UD/LjX6g/EHPDZnjisgrlgPTtpt2V9P9RtBCz2XO",
+	"/8w+6i16xZXiYhaVnC3y/ErmhnbLS5aSCaO5YUVmVWqT/u677w6fFnpupIyEarYpW8RfwdsxUnUqSAzk",
+	"JCZU65xPCs1I5/zFKfn8i8f97m4Jui6G4dItc5kwpcx9eS401+uPuYLfsSw7tAIFF8tCI8Oe5IxegqRb",
+	"ZIzIaXhtTuwKqBgomCLmho2EnE6ZSM1VAkmhJLZFxiyH+0aoYrmUuWbpK5Zy+hbW42Nzf7gSDxQ5xV4P",
+	"zSjM5TAEQ4qaBE9okrClVj0QP20fZghP4XsqEnZmlg3GnqbcvEOzN7lpQHMjKE5pplh9JOXbRM9zpuYy",
+	"S9UJrCSMIWNTbUQ4okHjMENiYsYFA41iSotMk46ao1yWZcilpYAHF0zPZQpHcRmM44eDCU0uxwnNknEm",
+	"V2MtM5abEYyXKIOx6yQrFL9ir5yih+fXnA6qD4YHqSwMTY+MRoIPHPX7UZNeiGKk2fKyzwUX4yVVajzN",
+	"aYLL8MPOtlu3/HFmMpcLqRKWUqV5wvV6TLPl/MbT+BQeeh+hMGI2fc/3jFg2ltPxlO/75oKKlGqZN6i+",
+	"p3NmhL2VUXzJlPKsyPFfPGpXLE95ok/wKug5yxWhRj9Ir7iS+RpULM0W6qaxQD9fGwUMxnN9hi8dletL",
+	"85wadbcQ/F3B7O9mt+wEWLb3rK/Hubrfo2COcsauWKasfo6PPg7fG2waSfDFfKzeFTRHRvkB518WOuMs",
+	"HydSXqpxem+Tdf0oXYAubln8vfSVF0Ltud9XLOdTyzE2KUH12P/462c/GgU5eMWogCKleUo6Z6ffPjw9",
+	"/bZLFnRNDG0ldEa5MHqCViMh5IIbZQLU6x55ZqnwoB8RaiQh8s0Fef7mKbn47vDL48/JK6DC5Mt+v/9s",
+	"JBKa8YnlKGH3eMUyOpE5XNUHypJvophWIKoZuRQMR/ew4u/9N3LyjyzRZkFL1vRGZjxZ78nZnoMC6Zma",
+	"4UtTmScscnxLlRxrbxa1OdUPZzj7MJYWb29nEy1ebmASLd5qZBEt3qswiP3peYWCN5DrViOoEOs2b1RI",
+	"760obBtKusdbNbrY4s0qlWvxwj40zsi4SOeyTK5Yam5fM8VTpJMGRGw7+QJR8sZhvg81nz+GG1U7Gk0H",
+	"duu92X4do53EYjchqJ+T6kncvIeVPWve+s1jFF6wnXv4fRMVdsej7rNQfCagIaM7wAI3747nAf3e45AH",
+	"9Pr9/lHDGXsqaLZG/Xcnta/SazSutzfhg6CnbzS4m2fqBwq6su83rliRcv38yumR7edQMoeaamwU4RVV",
+	"JJWCRYT1Zj0S54XoJTmjmqVxRGIwBPemXFc+0+Uyl1fhNzkzw2Rp3Nv0xkRmBLLBW2cIrdO90UYLujk1",
+	"DTW3U6OiVLNDzRes6dmUacqzZvqxpLnmSZHRXEWEiyQrQK+nzhieg2mJKil6jc6lcNuouU84wejAXz/b",
+	"+9Z9fClne+4iu3K+0FacLDgtG6ysNgPbctNYT2lhhqe2HB60NStDYbkCgwiaGYbWqgB32AmZgUnVkuWR",
+	"SHKuWc4pmeZyQZbFJONqzlIyK3hqXm4QH2mS5CzlGghNNBI5mxWZ+RH6t8Llxes3YFkgy5wlLGXQFG4u",
+	"mazBi0Mzc2VTsmS5kmIkvKs4Y1Qx68p0K71xuhZcOF1vU1AAKWLP7TVbWGhksdWVfmEeJ6s5Q+tHYhon",
+	"iSyylFgTsHsXVkuQ2PAClsZmM6AvWJkYj2SMHoTVfB0c7YmUGaOiem025gw21eYLFYjDcBTMiAzjAZvi",
+	"CRFFltVnMKfmqAjw6a0oWqfcRJopvmkFje6oF+yW9+rHlRk1P7AfWV+3npvhwohSljiHojcQgHFgxRWz",
+	"EwstBJuL14ZbVERM3KlgtYPG0GvSOJWcecsj3jpdWs0SuWBwnRopqDL3xkggW/YRfP3uGbM1C0YV3FlQ",
+	"C8Ot/OANa+Z/5QjdifPLFJW3pCp72KXaSXbLdW8CSsABsKwooF1L0BCHJC6lPcPzUNyLo5GIA1HP/FKX",
+	"8sx3XlAzdIpLYb7zohk0kjPzyxUbO9F1jCb4iMReUoO3mOJpQbOxkdbMF1YkU9DKQgqppeCJ+SXN+VTH",
+	"PRJ8Szp+zQwRtAemS+wmgGnMuX61NITFnJtEZ2viG0EPi1mllcwvDdMED3nPdUi4Ggm3S4RqwsWMKT2E",
+	"VwRbeWSMyuSy5A14LamA03zxzBvkwb1cIjXMrxTluAeKDPpkIZUmhsQLPRJOKsE+VFS6qb9jSs9onhIU",
+	"U+DiKNJRjI1E/HfP35KHV0cPdc5EquJuj5xVrjopRMaUCklHxhUYLwhVI+EXNbJ30bzs7dtwVaZGpjDC",
+	"jSBHfVIb50iAPzRy/WAD5VZ1gKjjtzlD7wKpEcyutaAIIwI36iZVraRBHwk1CntQjVoQqBBbTmmoTsBT",
+	"wRkttQYYiTtF5qaa4xJcVEuiooPrQzOLwyuag/PFTAeu7isuXrop4RduXvDpJU0uX09fwNTgi99tzg++",
+	"/4oml6eVOcLX5xd+nvjZTvbCzvW5nSr8eBbM1z6Nkz7HOcN3r8uJ43iD2cMXz3AJEClijjDaz5rok7PN",
+	"JeGDRnRFguWvhFEeblCXjvrB/24wV54akQ2kpwZ2sZKHiqfmGPunUF8ztxdOxBXNVET6vceGnPR7T548",
+	"uVGVe/LkSUWZe9w8Kp3L7KVhDmpP693FnK3mNAdp1DSCjmJFOmcXr8kXX37RPxx0HZPz6JcJVSzjgvUa",
+	"eFqTqjWe89m8penDvpHJVcsXYP9Zy4dXNBdczPYZkHul7YhqXNwOr9pObSCVWUeVRWvk3LhV50XWyLtL",
+	"4m7EoY7/yDShWS8ipxkXPXI6Z4seGXxBOkdPvjzqkuMnj7pDEh8dDlQ8AjkUYWUTtpYiJT/9y8DwoY4d",
+	"d/fEPPpIxeC89M88IhfPTkg8MI0QvZKG9QnFksJQDveYZ2TQIpy3ExKfHx7jOyR4JTLNjwSdyCtGfgPP",
+	"Oy8zCKKAW1uRv/6X/2WAPR8fHqmYTGWRk82eR8J3fRR2fdS/jolmovKK9a3C04CrsyzYcOUqczFLdhAd",
+	"mOU4iA4G+MlM5yA6MOMxv/WvW5J2s6lH2IL565H7a+C/Oz92fx0f+edM++ZkFLlqMiy8XtJ3BSOXbK2Y",
+	"NmxWyZx0zDX+/LjIy6u9NJRDzMD+F6BQHx8NWqFQx4ff/+Y/NEnZgA3e12NO0MqCUkGPfOfUpZxRM0hV",
+	"1fnsw9Qc8sxIf4lk0ylPuFE2jABYZdIqRiUwkVc050a2jcHjyRZLvY5Q8sMbrdAII5hp3XQDzxmyF5HY",
+	"6kWgWsZTo05Gtl1wuIJyORJGuYQjUyeOSCbGVDdqNXa6hQB90D1dZRm7LD60tPBt/JYEhoyd2pl7zrwD",
+	"c9rPd9DkNwh3ZnPiZ4IsZMqyQ/auQPu1zFOWD4nhODQnf5z0IzI5+j6yX4xlzmdckD/Cd+8KmhppIHHP",
+	"RWQy+L7iv27nprDWjEdNw98uBJw2sH6ziROU1FPz2SmmXiRoZW03/bqj2tSv+40sqM75tes4XOuIqJ/+",
+	"tfMP/+//+Z+/+4fuX//n//un/ysiuVwpIzYFz+F6V5bsztZu98KimXX3dbBIXKr8jRcpUVrudTPS6WYP",
+	"TmQlKZvljCmzgtOcsVQuIiIMjyHLwIQQuKAQqDO+YrlqFFchACLwB+PzSFa8amjmBqhiNDvD8w+Pev1e",
+	"v9mEbJ3D2N+ua/jcP/g+OphmdKaaTGqJVoROAICEA7E4bjQBCeksQK2RIC+4fpHRWdP9nzN6xZnSqJLd",
+	"1BAoORdzmoOBiKftwPtRGIvQaLzzPsXqUjzjSnORaLy/yqkUU9QjdoXEWPPMjStj5XRzG0B7branwk/j",
+	"nF3x7YfKat/uoeb7YXh7ZehHjUAVQ3JvGvkreOh9dCCaro/lyuWCkQ4cUqMSScGcgl4I0M9vXMyl5I38",
+	"AfEGHsVhpYHITVfmxPUakVkuiyVLyWRtyTEXyEcVLzlLe3CTWdo3ZlhNp7rihK5jLvlsDqJMSGUNJ9As",
+	"N4osDKZToC5rXbgV7ta9pQUYjFE3zescHnofmCpUuoM++qVP2RW3HubO+uF1N3JC83//ryvyWyLICuZN",
+	"VEIzdtsJgI/ixhngU/Z5cxfGEkg8zbLX04PhH9uQjO/rEuibnCnYKUGoIJ7g+vsWBReOo+cwZ/YYosEZ",
+	"ff/j9kSrJqQ2BPS5xccHtrB58CNunO0PZd5KU120uyUX+Gjg/q1O45vTb16RRJZqVWmyqZh0vAFng0A6",
+	"eWfcinJ9a5/2FMyysxvfs4+9jw7wMI8TKlJuhIutpMk/8UARlcicWcNrTAstUe1AZDmZ8mtDoKFh8Ldm",
+	"/JKRDugg5tShPdQsUSAObHm525qMITU6daNsomVurlJcMdFsg/udXNnOESoKlzy14oswJy3jysg1kqhi",
+	"Yf4RLvo0DuhMs3DjZ9X+Dn/nX9m8yG9dSBwjhRlTBwwIghEbCAo2abs9eIsBMg5sKhzNGEzgSOHvdFS2",
+	"72QupWIKyL+eM1XquhGhmZKly9ByfjwDVIAx5ITQCdAr640qD6LVlCcMz2Nam5Wf7p3PKxgqVZfI2KDz",
+	"P7NcjudUpJnd5M3DZR6pEgOFIR42IpOsWM7IJVtq6yzPZVok5hpxMeWCa+bO5wlq9W5dBCM0l4rdDGXA",
+	"EFIk4F5a25TNomrcq1O7Le1zslV4qptXv4nGOJG96U7Wl7GmWW9yk4oOWWX3oBNV3RumA+80CZReL5p5",
+	"i4CXfJ3AUdJXzzWiirmjouwF1ogNZarR/gmR5uKFtO7gfaA/W/z1C4n+NDikoAe1VyYnVPFGQMjaOtNR",
+	"QFABMpYLspJ5qhqJ361MM87AdjNnLhYLmq9RhVzynKnt+jY3WhC9QoqUMCNGlzf6gSLWT0HojNV8BFKw",
+	"rQu4ReYLVDOq9DiEz7WnS9+GbzWTpoyCU7+CkKTakBbHnqiOq379Jk/Hhp0fdsCdhghhUMEKN00r2Out",
+	"5/wlV/vi2259gPaw7dWOUl2AEOxaj5Mt1mi0UjvJzzxKluURsjqEWS34unfzkWnaCrMH4SjarDXqdvuZ",
+	"qV8LtqGMlrkSUk5nQirNE3VCaPARgGH+iHFdCwYmHSHRHCRzw8pzKTWIBROaXB4GLmn7AHpD+/CIc0uj",
+	"irArLKyAIP5GK2YggptJQb/IZ73Oc0uNLqn7dluZPgFhy5V25s9bdOzMAs3oItTbbtm0N2Q1mplyOrvt",
+	"mD3EAPayGQB+1O//9JdObVPBXllZ6u7Dysdb6+MoM9x6Pii9tdz3AG89Dntuzg2QrYl7QWGcPbxwy5mi",
+	"vLXNmFM3dYD6c0L6eJ/dUbsLGBierfq9CZbSD9Uf4mCbtqxhcDA3ble0QSAaz2FwobYS1AtvMajbkgB5",
+	"Ctk4euRpCYQCP9oSw4rHaPuJTzwOGQCchtL1Avdr9WnDeS2cCIaNKOy2uJpyzG+w1XPXaPDT07L94Ntz",
+	"35WfvGWP+4LTK07BO/D0Vbwq7dqbUp6xdFw6/DZx6qXpCUNL0V3A0R+7pEqF6DqZe/RY1U6x0XNdkLgz",
+	"e/9+tva7NJbfEJ10M83c14J4eyPdppXtlmYyq9W3NCF8PLU71G8bVNTqud+hsjZRvGc8K5ptZe4XMoW4",
+	"CEiKxI2iCWGkXFhll3Q8nPG3lhwiBuf/+V9JapvonpAj5DFo7OndOk60Bdzteehj3EMmvslw3muAQtiA",
+	"mA8KcdntMnLCOWJIrMvM8jBVoUp7kOvtkl/OMLEFa4pb3MLjy3eaDtiGx4mKGRtjXA7EZt2kWJePNvxU",
+	"8Zu0yrcXziB8PzAQ2R5rYw3ig5qvkj947TSyLVvSPkatsleb+p07OZbjQQcROTqcUIWJODZ8iic2r1bT",
+	"m/XrW7mUu/20jcdm5wIGCev2WMLyIrWyBtS2q+JHemzntD06qH6M21l63rJr3WDhQasbQxS+DezPubgk",
+	"VJOJ1HPCRKpOHMQ/LS3qmVwxhYj6OZ/Nzd8WAUBzZl/1Un3lLt3NeJ37HEBoZUe1Ha9frKa9d8iLBmio",
+	"4T8W5kHrIA8VojxInIJNQViQxhiZaDxEaCieY8hhQxYSom+oIHOaTcvwRU0z5wC2gQVV3EfcPSHxlK3G",
+	"/vKp8VTmYzWIhyQ+eqj+NEBvDLhs0Ok1EtgzDHtOlQ0k8IsHw6iYKCFQpewhrkI3Gydp5ICmYbVUIuzy",
+	"P7NNA3zlO9ew/fEFW5375l/I/GIAasPvGM30fM+7Wgp8blbyEg9Ium45ZOz39e8P3BDO8eX66bNdNR26",
+	"gJ42wfVtYCsVQfRK5Jy+kd2uyGHmcqLoYomYgQCG+vlxKxTq9/W0qP3o80fvG3GpZVLUNzkzB//WFDPQ",
+	"wNqznRu8EZitx+rF1ndgVGBzIU6IkKs6J2knJVXxizu1hPJJo1nAnrTnCuWSXsCb9ZRANzCGelixF+/d",
+	"OBqPocVU7imwBrBNh8oskRWh0QxRyPFEFiINI0ojEmdyZTHFhn/EHiXcYH/Ft5vtkNsjE9pbIdukENkW",
+	"zbCncQoCFmwQg5Ni3fyaNugl1QyPQ7ssardBTOMBAd7hojUxbtrcCIiO41eO9e97eW51z9NAM9z1ltcg",
+	"Wxk+6iJskKl4N1bKPdiod5f3rGyxcSNLWOZ+d+3tPJQfnEKW0XwGsbamxSYhYvMa3caRoNyAq2P67/91",
+	"VRHRMd0ByhQQ4GkfoFnmcIbu99ukSqmbcnFUjat8m5iuZ0yzBP2aIiXvCgrHxLo60VMfIea7jrRSkPx1",
+	"qUmc5FzzhGZjsEDEpEM98qK7K+i5tkWulWR3QN/ZxWtydPTl8aPDAXHvuLTWzkuo68F+1+Pkti6oyuRu",
+	"Mxy3FhFZ33oU2xJy/E6uTB9rBLi4xQVH32q+Nive25Lfg9kosua8BOGsrJJJ8CUzTJyfWdXbZhvIZIMr",
+	"8ez0d+QPA+IHh+cvIo96j376y7/908OLW3f2bmtnTSc+Ikf9D+pQ8dmCNotr/mT82z/BvXKHA69UFZYV",
+	"QztjQAkY8aFl7EfwVnuV88K89BW80wyF+Ld/sng4wQyRQxRat44jC4IUIIJlGy6xs5rzZI4t2juCgOGL",
+	"Z91eg+RguI3Zxo37GG2jG5uHfGeGg1fe5L+XiOGSHdyYUaaeN68UD/ZIS2PZ7fub4ozaeMlvjp+BkHlr",
+	"+jTykX1lD+XB9jFZt05fZF+p9r6FhAXNbRhxaxg+M/wZv2LNTS3o9RiO6ZjO2HguiyYw9deejdkTnUoL",
+	"wVjy/Lb4hj0jKWwCjk1btnVr4sjGXIynDu+2qTS0d13dxj0TohXlshW0yL/92j6/JblJ4MwJt+YmzKQb",
+	"RQ2X6G9fFF7j7WvZfEzq2MTyxG8nMrdAaaHNoz2lsNTspuRVrtntY72lgeMWdBFVvA8kixWTwQ2m5CrJ",
+	"bMclQyPH95uiNMZq9ntPHvcaSNTNFt+WpMgIfZkUM+sTDB0KrjCJ0nRdgkhPiJAo2tyBO/DLL748vjEH",
+	"8q3oWnsFdgfBa05dRQFmYBRIm6IHcuWtKNQoQrzIgq7JhIVhOs6M5jNhwmHvNqev+pmIpb02zRSziTD6",
+	"69V46d2+1aocYHxZTNbkt2TSJ78hk6Of/nJ9QuJK4Jn93f7ko6vjkai+Z/4d/PSX65/+FVOHfHn8+eeH",
+	"g1oaHmwZ4OJBFwfRgW+3pcEa5vTStRZ8eu1ahO/+UDb7Pjp4DSn+mwCp380lya3noLRPn4C52p9RVxBs",
+	"jaEYkNwt/o9xzUbdtmBX1Uj9H8FKfTT4otlM/aHG6b9Ni+8uO2+4IiWi8Hb2+rsB4O/KDIRm5GpiAKMm",
+	"tQ38B+bRHgKEz98KCISv7o/6waSXtzkp5/Bmk/6zBZTUBPYe10yXFgFUWYj65Gqyo5vBDTjxjYHvfRN3",
+	"2cGqwGsUBQxRSqsAoo0EksDbMIFkCRW3+pYzVJlvVtKFZ1ey1ZFOTBcTPitkocbm/fi28cahpbvFyd6S",
+	"jiCGtD5jGFsckRjy/5Qf2bXO6RIr0EE+QXg6k5g70H16Z34SbAa4VfhbwtyMZFG2XJ32SHRsBqIw6qxx",
+	"yYzqWTEFDkEtHYkgK103InEhrDtk7DxLcW8kLiBhhfNU2LNXMpeE5vkaRgxbC36lkYiF1GNn3DLbEINn",
+	"ncRIbfFAxt2bUrU2Qyw3HuOBK22nFOeeC94Zl2jLRttm6WUzWrycaMqFDx6Np5xlGcubQ0MXjIrxnjBy",
+	"Z6tvsgBA+UM5Jd7dH0QYUoRIpzenT6hlANx0gS+XubzmC9O+qoRwN/oZXYUJd52C6CpzxZnS0NRdwMt5",
+	"2oAtb05oeAXAcReP6Be1vicBFdg8EbtpqhUb9qOpf0vetd0+NVfJahMv/+KUPDl+/AWxFbIIWj3Vpsdl",
+	"m1MBc5uDVReqh9pUoNwHO0fAM5ZMWtzFZsKZLRkJXkiAsNKM24Jika1q1VAezGZZbikiwFRfmJcbyZYo",
+	"o4G2Vv0iS4rZTxoAj/CAFat2lQ2L/+HQit2HZ4bfaEneFVLbFNRI6zFb+uN+f2uS4aYwCNPP796+fUPw",
+	"AUiIUEEEPq5kfzzuNyZK0Vw3JQK8mMtcE4VBCI7KuPNjWmkcqrYV2uoInm/Oz5wutHY+27AxR7uLXAyB",
+	"Z10ytmT50D4ztCcktqQ0UI92i3fwq5tjgNTeYfavHJzhDy0vyFuXP5q7Yni9rRDjJpCTeb925IeEkr+/",
+	"eP01eYMvGa4nMR2YTNcRiR8aPVg9HBX9/qNEwD/MfkpkVizsV/FImLt5evEtSHExPsHtr0P7Ol0w+zjc",
+	"ZFqW5EWBYPc6u3ntXNlzl01mD2f0d6HUFJUhhBZvaRfEQS7RygjVO8UhZAAoyzVRMsmouAwTDAVBk5pB",
+	"ruFuTTbObaU/DOGtHoUPgdrcOXymcb0x975Rz5rqVC5zidZzmsVkNedZaOmqGMJOSIx5/FFqlAB00pCb",
+	"2idfNvQZEaCl6xTjIVxgdImtOSGxYSBzlqXxSNT0EOApGAwV2RYiUogp1+holjlRxZLliqXWrU1HolW3",
+	"PTcNBxf2yft5Mq+amoK1wfA1O/mD6MCNvG1GTuzxTaVB++V52K797jvfPOxgKahu4sqDTN4OKN6xJkun",
+	"uFhBEE9+IvMc3Z/dfZIaV2Hlh5u/bRzv81DcqYfulXKyy03yQVm1/BLtZyyCQRbZ7QrA7DD+7BNvktCi",
+	"aWuDmjGQeBTtWD2aVurDQGyj/xye/xioPH7vg2eataEWGKib0TB7mpcuOVbOdlfNOsgsd2bjZG5Iffvr",
+	"5Xfx1DcUfAnE79Q1aTiwWTqjsStHFtv5eSrEdEvWGqgOj2TH8pEpbIWt/9OQBeKGoBokVn6k7cfnDFJ2",
+	"X/y2cqE/P27MQrlnmCAcyvEW3V+xBnTNG2nvt2PAjKUnhAuzOpCPx6gUGPYCFXQqJGr7uNuZ+cyIbFIN",
+	"OH/u8tUXeeN8hDFIfkXD+QehhjttiZWb1sytTfMvGEs/Qr6OPasfhbSyKSMnVeOFzLegC3Ym83hDlSJU",
+	"kVhxSKJsc1dV0noAushhoXfvs51XPXeHH+AN5tlzny5wT0SqdRimLLGp/ZY+hjFhdeEGamKlO6IYt+Ni",
+	"goJavjr5B5b1SnibNLC4Ms/c0xXCtQ0Vs4mz2S8Rix9bcAlviPyrDTNgM1ZQ9VH9rfmLafCpfxk/n9sm",
+	"3pdf3MaxdheL/6HhY0Ewm5aulooHDWAMifV5lFnKe9v3qnFXiox9y2VWZmPag7pZorrF/mGRV1xcyezK",
+	"6AOGu/DG/JVt+NpGcCFu9JYiYo5YHR0OFLGlDSJijrb/KayQ04wSyG0dhhv8qr5kQ6WU1e4LBE37SQR1",
+	"ncpFbd4usXey/bwQhoyXmbTvIC3FrRypbZKAu5z4++b9vgV6cSmVZinZkoV0z7RZ54XAUggNJ9XNYIv3",
+	"WBtmZN6pLIAbnQgzovwjUtpEXbUuOiFeQO9/f/H6aygpYT+fXnwLNPK2WTjaG9hLh9G+7+yRt0NuRYB8",
+	"AM/bHyZxXgT4iIYku1ist3VzLiXwjdDA/dJpVFJf+JXz53Q7SjKcQ7k4UZmWbbcEVwinB37MrHebxhnk",
+	"n0uWuzDV9haNHbe87U1q9NK1XsBW5VbuIID1ntPS7ItD2R3PtpHvZcvq3RYfewsG+TGpZUj8dr3lYXIf",
+	"Qtk88rdu0dtJ7jYvodG41+ElBDO1r4K9F31sGNPj/RBpnnbuoJTlhLYeLw+Vumfqti8oK4SRNMrSe1iY",
+	"NgRZa2JpCbMqWeTdWXbTrfmZjrax/hbYki0WtApgYJ8M/Ddz8KYI3WB2O5fzVkHXn0KecRUr92Nf/cpC",
+	"vRx8i6W+1mupqmMm2NVdq2E7sa43VNpshCFV/X0zeoUVgiAMEhFpABK6NYrwNikLq6pds6JmqdcHFQXx",
+	"NotN1BZJqC81vZPevN2EdH5QTriWpGoL2vItQDkcBIvAU0YRjt+8vsBKwCh4PvyBp+8flk8qrHUHuESH",
+	"U+yUx6KhOl8XHFsbKMaRgNdsWaycTYMQUnQxnti6zyWQrCzbfku8Y5MJ2FzsB4rwNCJU2eSWAPacMpZC",
+	"EhtFeFu/xh3hJ+8cALlbRa761+/Fq3UXfPGO3V0b6M3bBIiHzs8bzFe4KNbfKHOCSA2z4pj33LbS3rB1",
+	"B1V2IoRRkLjy02blTJvkxqOZIdENFy2raeztd6tK16HE0w6Aug+0tX79QrBr1clYuyYNu79fFGkoWvwt",
+	"qga77ldjWM9e2gD2rm6nmO+rw9YzFN1bDNNFIhFr6ey2eSHUcJVzHcSjDM0p97afYZnkOl1w0dK8Cx2d",
+	"F0J9Z9vGL7CDc2wfvgLzi/I5r+G7p9iRGW+ZTqKRf/7bPzkyg3k4OueDrisn/vL1M/LbMukHkJCXr/9A",
+	"flum5RiJGFBOY5XGQ2jm4lnpNXXZEbUvdgDowA6ES+i5VGwkfLVBDzKcAiAwRqyhTfIHzauHf/0v/xum",
+	"9PHQK6qx7K9FJm4gECM3KAgG8UW7+MIIbsqCDTvsXUGzkQN6BjkwUGwuxMoWA+yeVAthDesvRFivGleB",
+	"hqlEDWm0IzhxtaNAhLJBrd0hKdcywOflhYAooXpSRMOCII0jwsxKYBfLzLpurF8Vamf6P4gOXIeQ1aPy",
+	"fK3UUMtD60/bU2y//OIr09NFWvnuJXSJSamqv7i6hRcIH/LW8juMF7xFIqpdeYPvw3JQ8tWb6glsIVYV",
+	"I9pHMCBsLOoN7tXg4XB5P6o14UMXGZz8m67qnDGi2bUOIjQg+j9Bp7KRFnOaaJb79F2aTrA8Nmouhtom",
+	"NM85nRkKo4tc1MKWB46vbYlb/tNodN3vH5r/fmn+85X5z6n5z3Pz5dGL0ej6ixdbqr+/lZfstk6dW1gC",
+	"2msFW5OvKMP59pCOgJM3iEXgR27mloolOdM9cjGXK0GAd5izckK4JgkVVm+G2jtgKGopX2OPkcsWYCdy",
+	"Y+562KLbyVduEdtZVcI714BmkZjljGqy4hkESZf++BOiYK2sao5mE4tFpEXKNdE55VnvQzawlPSOd4l5",
+	"oJ28K5j9uakeWHUDGtc8Z+Iu2dCEKmbu/I15SUy/X7mHbwnTuKm6dqtK2BYVUxbEFrKxrioEr2lJLhlb",
+	"mh1fcJEG6fy5ItrMiXQoCXD/xC1I5EBGrjodRRvanqVIfDxNqwV+45+uFCZodRyxgW2FpnVeiKS5cNfb",
+	"vGCleXbFRSpXZM6yNMjSfRT1+323IpjQLcMc5DJLjeCLD0DyQbPGzaCnK4cG28c5GILIbnR1NNf2KDch",
+	"qDLgT35QiDIYYLhk7ozdoHFW78gHAN4+CLy2MIt9O2uUaKo6ER00FfZGZbeprHdHQBmxo21BVf6G3Tan",
+	"IsswnGV7oLjrwV9hyIkJZXtv5oiwfjBprGZa7kzY99b9fxNeeKtamc4yCTGJ2/wC/ogSaunSVGaZXKkQ",
+	"o+UaAZOTkdk26rGGpWoy2VZtqg78wvZS/fYs6LP6S6Arbfx04UdT/eGlRMUqIFofATmxb9AKMxS/mWi6",
+	"fFLaRoDaQ+bfwFJvXDkH19RDR12YW0hNFxxzUsHDaktiKS7GIbfefOB2cJnmbLbg33G79cBOY1cKEcEM",
+	"J7VBeFCEUkjiD+ptnXr7J5Wp8pjmcF3lEM7+WQclDvasNVSkBtPdyaBCo3XFRu2SmPpY5RJ4VJ7C6hmo",
+	"zLWJHsExDi9HUUDPoY7WP3xCD6dPD198/8OX7w/Dj8f7fDwaNCeh+qbRxfCUgJMBLFKJTH0c+GL28GUc",
+	"kbiw//5xuVx8X0+W9WiwS+f8Hw7/p+9/OIoebRlPtaT/nkHJUI8fa4ygWc+VxSbTQqAftJbpmVw8G5JL",
+	"I3jGS7lieRyNhOpcd8lvSdL/6S8Let25jsj1eMFF90/JEUZDwUcMYF3QLKuYFdElOhIVE8GJ7cImSFNp",
+	"TDqN2Xa7YffkNyQ5+ukv12iXq0kj/bbZY49aPuji/3bzXhel1T+AppsO9bclRagFUEKMgs1rKNakLCQI",
+	"ldkcabII/a3u5kqVSKpcgbeWnNSO7g2+aD+9gPdx7NXy1PvWIG9dq2P/Yrn3i55ow23LJAsNKKzplOVM",
+	"JKy5mu2vn4FToP/TXzpTWQgsZGtt/t2H9o9bsiBosHW547ZZtkoaccth7R9627YE+u/N87vrExt9qXkn",
+	"DIv98dfPfiTUSK8sdeXfYR0eKFu0p5LRucXpNBdxW+2TnCXyiuVrN54PKDD8wfiCMkRnQ1q0OQlg6R4o",
+	"53QhiVwwZeE/rWx1gQRhqeXNZmN3iGuLtXGvwp31i+4vZhBJtLerOjxfHw+pb92hPri8UWFcGGbhkqnZ",
+	"J2tgiwmDuGHDTRHJ05DzNtCXr2pkvu3F29jwWt3/+nRuMEds3OlNlskF15xmMemcnX6LQKtECs1FwcUs",
+	"Jp1T8y0IEJbOhSMKOaVtCE+hfb89y/RNnvlmKgcmaLI2r1uk0L7NQQqn3d5CU93bGzSDahd7bO0tIw92",
+	"1kJyVp2wGtJetcJ2wUO/tr74WvI6zENE+pE3z3vckVEUPqxmbavKtR/MKD+q37AN2bccYov/BlNIn1KR",
+	"8tRlxdjjBKVXXLEtsEgYPnMwg2QupdoWCYt2uZ3NuMxNLv3tZiMLel0pxzjeUrPpbZuqUaRerbIQKbOp",
+	"URO3WqGgZ/HXRo8olYjb2F+lbhQe1oSWHSPU+5Ivl6jNIJuGilMnhEG9C6nnLF9x1ZytTRWLMZ2ocXNN",
+	"qx9/ff78R7cqRqI9LGv6e8KgNsTcptHdchXuoBh4mOc8mO7Wc+JPYeSPtd2N7ffGDrC6fi8ZVfoQbbDK",
+	"HifVI/HRw+s/9XuPY/LX//x/mE9rqFOKpw0SHzrH1GRN6EiAsQDFjTrqEiyI1rrQeZotGE8pYZrQrBeR",
+	"v++NxOk8lwuq5Szvka/IF18ck86g3x90yeDocbdXFknFsZkOjx6qznX3p39FCBQdiU27RmC0uP5TcuTq",
+	"mdEkl0q5mrdakkzOOvBpJC6edX20gvm6Mo1uZBN8mPn68mlyJcjFsxPMMmYGUh4rOXXEBDxPcPAwbYy3",
+	"jdgbaz29rpjrSMQbufV7dSiTr8tWo1iI7QoONybADCwzqlgA0mqiZFZAfqsMU3Bh5kt7kUZi600idCHB",
+	"ISkVVBpAPK2QG+VyR2JnvdwewYLlqHAi/l9B7Tk/fEW48MsxLr+OI0wg7G+zVdKm/BqC2FUJXKuCuIQE",
+	"M6Q93PiX/TyAf9f++7X9jN8r+BcwYO2ERH/lvsYu/eczcXXxLtf/UPtu4/Og4aX/VPtu4/PGS5UvAGL2",
+	"fUgPXpelG/YK8/GFh0uAoD2pkT3kvvAEz7KmEB/U23y5sbYFvkAgCm5Ci6rztReiStc7qWWlUMXdLdEJ",
+	"VKVmWUoyNtVEFppoeglBF17NvtcFqwGvGABBPfi0kUgJxlKFacIsOdaSTNg2kteh4A/MYabmTrq3jMSB",
+	"b04zOpuxtBuNBDyMo6hCM0kczHpIsG1cK2D25uEHilw8GwkwSBBXyObRkFBDmS1GdiXLJg25NeJSymY5",
+	"M2M27zKWygXpmA148pj82iY/V0sqlJkCgnCAaprd+qJvo3G21bQfNNa0rx008AwnRc71+gKkRqyay2jO",
+	"8qcFFsiuab/ma5nzPwNHGpKv4FnUQxIAD9nUqD0CUB81JHGJto4jQOJ6uDWkka8AriFVfLrgIj4hijGb",
+	"4BgCpbkUDxSJrw/dzTpEyI8FyaLYayRcGFIpxM21Xh68fw/OwKncnFKQRBejAVUlXWQhgCFldCJzaxoP",
+	"dHvPkiLD3tVI0MrPG6kNIjSsm4vmGX2ljHpZ/clINBlP1hD7RRQD34SV6iMUcqCpiCwziYVGr1iuwhAz",
+	"BWerEJdCrgxd/MNTl37LNElFBc01EiPx2WfIEHGTXOQX1Shd9D77jJQ1p4y4UdYrLOcCjpYpnxn9F4p6",
+	"spxTF/NitAdLXxRJc7oSeD+WxSTjas5SMit4SgGfhxhxv+64OGZu2mq/GMwzM9KBuecC+a5lxBev38A9",
+	"HYllzhIG1SdOvM3KEBO3FiBOvStohtGiS5YrKVxOVGvU6pHnNJmPhE35KtIwkM/LljlbMqoVaj1ckNgZ",
+	"JGJY3V/9ipxKcWV0WinUSBxi0mIkxBj0ZtZHCXrJxgn0+pa7b89fnJJHjx49IZ0Y9YMh8QaF2JAwYnr8",
+	"5u0pMQJvoZeF7pFSgYZDjMGuZngA8c8Z+eabs2cEhQjVMyPCPP3445QLrhk5e/78+eEXj48JqiOqh8O2",
+	"2EmsoPA1/RrCqwS8sz4xw7HgL8zuEyQQ5kqTDrUeJixcGLqUyjqs1LRSEQKhmqLHluVS6i6k2jL6UezE",
+	"Y0qUmbVgGczI2noIEj1lwx6JvRW4+op04ibWOsSqVVDqgRBnV/BNmUVKMmlUSWq4bJZFRGE8gkZB16xf",
+	"QnUyB9DCGnszbYFAbO50bkabKlwIODipTJD2+DVDgjVhJyTJuOGzRM3NkpmGlOZZRvhMSNgxmAwUtbUl",
+	"Fs0sIwI5A4kRo3NiA14VoWlq38CthxNoFChP/lTkCJeK7MVSkVNdgCxh2I1ZCTiB5XkbkiPDZj8/Jk8v",
+	"Ts/OSMa0ZrmKSMpn5ppCbFvP0Pux+c/Q/OcwjnBKFBO9g+pA7avmfMG7pINSBonL4x13e+QbwSEED0DY",
+	"iC8wrQWgbZr7qFd3IQ0/M43YhMgwJ2ArI4GkMH54dRSTXBpFBUWQPXjgU5vgCjDhDLj+SLgYEOxnaAby",
+	"I34gP4LE8iOZ5dTs8o8j8ePh4aH/v3kwZKfkx3CvyI+QpQpZFmTvgO22WxShvw1+NHcqwocr6aBLBatz",
+	"dvrtQ7Bk205Drk1+JC/PXl0AUmXmarf8iO0jN/c8KeBFUa0IS+Q8eiCjM2bDfmrl47D7qoxAfjScTGk6",
+	"nTZ2i9ytZG1G3LXZ+jyW6ITYIKbQPpOzROZpZU2UHQEKJeRHAn9wpYEpmWmDsAok1XRfOAaEo4DthzZG",
+	"4nlFliEZVxoZOh4EW1YvXXBkt6hWQr51c11HokH0GRJqT5gr8f7ZZ4bMSME++8xqvAuwC5hmNUt7biZQ",
+	"PscMgaWEXRvRnGu0EeRARI18AoHyypM087Rj+hnThjsZDv16ycTTN2fESZIuSyKQMAiowitUztxQ7FLI",
+	"HJI/fh+PRMe186jXR0eospcCFwpMGOZ2vDYvDWB1zStnzwxTFSzR1vKpDLF+6uBhEVnQzDBMzI2ONB9O",
+	"wZW8ZHaDzIiO+0cnyLK4+9ZyGiPU2ZXCAcHTj3okfjhnNNPzPxva9dCcwzX+uWA654myAbwP5ZIJuuS9",
+	"NV1k8UiA7CGk7aQTu4WDheg6wvQcbCGOCmEFG7ORgmzUKOnEsFV4YB/ab3/zjwqCipFWjkRsqzUYStlQ",
+	"SSRG20ts5ZCmwiJDwyRsoYWJTC0zM+KTGdHnT/pHO4swsN4MuGj80N+4h4OH1Rho0olHB6OD2MwUgNVz",
+	"meH73RPs/fTiW5KwLDPdti7rEJFYxDb/5IQadr2crxUUmwfIawdETULmjKYMlhm+Puo6kJXt6IuHTtSL",
+	"7XBKCKoZz031Ilxz7wqWr4egWJqxLameD3mKzC/GQQzPUrZYSs1Esj78PVtD3CHa0q2ctODKyLfCKrnh",
+	"0kNDKHBz5ezbOfJVmz46fmiP2it3PYhaC02vI1u3xmhPlscjtw2Af4aPHvf7J3h4kHBxNRJGAjq0rU0K",
+	"V97DSGpF5r0GRurhCTMKus81FRjQnNAzEubOGfnDX1t8IoIQTchcwcs1IpdsDbLg8WBg+O7jfh/VF0M3",
+	"RmKE+F9BM7xKowMkz3NmeJsrUBOfWMO8ERBnZiD2BFtJLZPmCH8tgdqbzqxAjfgpXwqHq4qU4VUqFB6d",
+	"LFCtdmMk4nD5pGAgxnosCAh+QLUvARsKSm/GE2aTU2B00IGRXXPONM3XQcmaUMlFnKSyCZl6/V7fJi0z",
+	"NOpgePCo1+89QsTjHOwBjsqZv2esCZoo1MqIV4N+P6iOscxlwpQCopXxK9YjX4P45Chfz2c75FKcpQfD",
+	"g79j+ne2q5q3b9Dv26J+2hUhCCjeP9oEGnhQbzJNYRdoEajNA4ZpVuMx9tfUjB8X5hMRNANKXTGmHAz/",
+	"+D04URZmG4YHL/kVEwzgbRoyw/yxnLk6+N686njG1kV+k0tz/lmhMESRXS9dmnjUB+vre4KPQP0RYJ5G",
+	"vDXcR69kfolxKDYDnSI6L5TGM7WxJ6/syG7cEzOuh8uM8tpu1BE6Gwtve7iPpQ+WbeHnsXUTQk69dSfe",
+	"zhlxworX1QIqsaKKTApupFqwCLY49ra5/Y69G+QeCx0O3chZbvgR+U9PX728j/V/G2q0u5YexaeWNMb6",
+	"XFKqqeHnhNpfnQ3IsizDL4s8hwk+7j8aidLJW9+V5qN/joP6WagR9G0YEByrW++NeevRzW9dIFf+RtAr",
+	"ytHXvGtbz8GWfQNJ8wmttu7qZ5+BlXj42Wd1w/CGzidzp7oAU8UMGkSgzX7KcyMrQCZzxE/GQahADAYU",
+	"K8pati/IZD0SMU/DH3vkBc/AUpDIxcSIgCArPf362QmJzWUGwZQLi6hB8V7L2GbEMN9FZCL13NDaygh6",
+	"5PdsrRgUauDCGg6WVCnLKrGSxkgs6Yw9UCQOijLEUPTB/V16UyEFGg73pPaCkcUAayDxnkCqI9O0kYzw",
+	"ITMRuaTvCnYCskbVSJcyDDGQOXhQEaqxoKldELhGrvMI9aF+0xV6yZU+dcl0vaysIHjZcIkDkIRdFPWw",
+	"GovY7gKFGKH3UXOzZVTj3bXpMxfdXZM+jqVdk5WgpG1tBrl4WzUapPitX9bnNM+4uW2Vkx2V9wGifxrG",
+	"YG5OZQBtIHGb/b+kuqF3f/O29Q45TT607zd0xojif97aCyhzlY58HOPjfuCmG1S8dEdNXromeaN6v32N",
+	"SSQbeLW3DMxXdml9qBSw9O/vkenByQUYagPfey0YTAjicIB2AO87bsP7vqKpg3bCK0c3v/KNoNacy1J8",
+	"qQW3fCHzCU9TBji648GTm994K+UrKtZ2dOpn4uaef59iiAU3Cuw64OGWX38fHWwYGyFxVqtcWVXmD9ks",
+	"70ECwDpioH9Pue6RM+RS3iUpRcKikl/apJfmVqSI6cFvxlYZxhybEG4NBtCcuZa2yIaY+32DrTVtTPkI",
+	"Hn2b7/R+79c2+R/L3f3Cr1T/+OY3vpb6BYRo/I3ewacuHbE5okZrAce+xQeA/8alWLjv2/kQnCWt7uju",
+	"O+lMXYmRxFOsTmcRK0HBVKuk5YWIXCoMEOCtQyHw3IDxaLlkIj2UIlvvuolPYQq/yOsIQ3spt2rkWIrt",
+	"05X8BVzJ4OiB6yqxRN7dQHuZtt3APa6crzcKx20p1QddPIwPU4QajRhHHZGcWcixZ4K1SEKPtJU5n0F8",
+	"iQNXQGFBYJVljsKMC/SYQeXuteHX2MxYTuMTzKHoG/J81EWHgSdB0zUAY6zg0SPnDhNXHYZPMGne8J+M",
+	"9gqpaBxYxiIDO8ySHWhrJAADDpFZRrONPfIwJh3r/2mupNu1BMgvj3WYxEs0D4zt4p9YgKL1Z7v49UI8",
+	"UM6jMRIzpsHzgf5th4/iOvKOBzfbB8rDkmiO7AAyCVE1EmX95h557dIHWZuWJad4TueUC5JQgbnMAI5P",
+	"Osf9J9FIgPMltjGQamzftu6fc0jt0DkeDCJ0+k1y+MfJSaVj0LMp096JR3GNBCZSPzv9HXl11CedQX8w",
+	"6EbW7hCAty5ev3GRm4bYd8GdGINnZ2y3Lh7iGHBbASmEnNDC/V1BZI74SYv197nLoUF7WNRYgeHXbJtg",
+	"q3hIqCYZowojVVzoACKS7GGjGRghsZ0FvR67X8bTnAKIAZtZSKXJ4DH5tXdpudgvN5SRIGWz5qhl5pRW",
+	"J+GGkMhCaKjsCT4f21TXjoILjL1Q40u21OE0KrDB4MHY4nPMGDoOA634deS2qIvpvXyiU+xpIvV8DKDT",
+	"MROpGgvGUlf8e2gnY4ZbuWtmAcDeZR2oNqOrO+Gu2LwF8NI8lyu0eCG6lWp823R4AiYo04hF2eBY7Agi",
+	"QHUZxq1tgKmDF6zma0zJOmOC5RQgP7ErWu4NWrDI3Sb5ASnnc0eNP1CCADb2lUzXdyY8+JF5ll9Fl/vi",
+	"yBXh5ejj6BJhSDr6raH/lzLZEsf4hup5WKEVS8DGNeYI6UuqU4x2uTn+nQlO/RaC06kU08ym7zk+ajGm",
+	"N3SdSZq+lfIlzWcM33vcZgFUscTCGK9YyunbNSZwPB4M2rxsvcBG1nouNNfrv1XR8HkdLgZUDkQsKGKB",
+	"kldQ5M+JjO+SuxAXl5nUvSWGz92HIYUuGIDnwNkAnamrWWxn9ubrvyN8QWdslwL2JpP6zdd/d58qGIzh",
+	"oV2FBpPuhAuK5qw2jlCY5Sel62e/WebgBNpWRPAU3bvRw53ye7hSFyWQ1ouBPvxnQfNLlloR2WpoduY2",
+	"dHXKIVxhJCZUpKgw0DJh/ZIKlpEJy+QKFBa8mh5XRBEfAsifkRB0AUImtu+jUIIIF9O69RLddL0vvv0I",
+	"11tdzX5zfStkw6cL/Qu90Hhu7v9Cl2DzdjaVKqq9dofPNsKpoCLEkmhJjvoAL7SxD0Ecl50wqHpGYR4J",
+	"WmqHCOLF21zecuKK4Rh1KC6/j0vtDbQrp+t1e2QDgdgjb4KgLwhLqUdmUbF24Uvg0Z8DZ59iOSKqLehb",
+	"EXRCm8WwROGkknlrJED7UqC4IWmyNeiIomuHhMTAH6jWIQuteGqLuNnQOJaOBGqAMkdCRihauy1AwVrF",
+	"McxnyjXGRVrTOPYDaM+ROO4/2a7VBYvyi9PryrHtpdj172UAtp7TFm+stWEtfTAJmM8c2hVMZ//uyO4n",
+	"HeyX6LUOgwUUFujB2NaAvYRcoCWP2cFTLN+5AxP9KwmZiy15g6jXumHZsJbYhipZhuQyH8dYARJda2hD",
+	"S1li7Se2oh0qpKYl1livgTyFpsFGXtZChaS+SOohMgdTgqIRjpamtM7xYOCJshSs2yNPKwwFE5VnUsxY",
+	"vjkzwIg9GYIcC1G3XJEpZJgciXMolKJCFyEESAu5Quapmkg8Vs+6Cy/83RN3HNvPRNi3WuxwVCz9RKw/",
+	"EeuP4Euth1zeqzt1I9vgHWv0iGyoRMt6mEODAgAIZB1vw8R+W0tc+AsELWxkjNyidFcW/pP2/fPfu2+b",
+	"I7ob4Qw7bNMt1fCojZpdSQCz/Z6RsyCY3TQ7ElvC022+sgnVyRwD9aQgnbCj7omPER+JBXWgJPCxuuyc",
+	"5pbOjdDUqQ3KusYZtZKW1+AnNLksi16irNJZMAqmgdhvUhwRIUfClw23KQkWS8hwx7UNwazGvg6JSzQ8",
+	"EpCWG/IPu0Tc0MSvn92csJucaUxvqEAZHwnILP3Xf/5vNYdxmWimFy7yWMuM5dRmN44jFBBHwpkifvqX",
+	"QZ/82hVaId9ckOdvnpKL7w6/PP6cvEJ4yZf9fv9ZmAenuo8nm9gAi0sxs895CmsUOZzYSFTSvsDXDkvg",
+	"cGNPy/BKWFqXNxzjH5yYaiRbBVv71GW2r5wvQF5Im0DDZ9+uZi0gDn0+EtTovraMvCH2pBCaZxAUbCuT",
+	"hI1DkK4H55xAxkL7HAISIM+MskntXC+uSr1FkKC9N2w3GgnIpgFifi4xs4/z0WM+ZltaHRJ3CmZ0AaEQ",
+	"zmCPOZaBh4U77j8h1mTsqrSgjcfFKKMEH1ZjGQl7fcZC6rHXV7qR13VKEAvk2hHEY5+8v6xsJESolE3U",
+	"rEH22TlV4ynXcbdHjgeDIaRhDNfc5vAJdzMA/Zg+K0cf1nocnFsI5qcIldliYvq2mm76l6WGNKU8/sjw",
+	"gaYk5i0kCQ8SlYU2F/2TyvJJZbl/0ekcZQTanBWnTIrTUoIKq4zfoMoEaXwe/lB+eO90HEsS78n7H1hx",
+	"MOlL6hIf1PyELl8D1cjxnIdiJIRcdYc+L6uvIlfyMY22fiDI8C52l3s440h0hNRtmAXKU+Zhx23Ql4rB",
+	"oDZiEZHjYEmLsIAN1S7vc+BMgFmtKOIIwTBls1Mr53EhioUYUJzYmIsxJCiCJE8CLG6qSOZ1jqdGApmx",
+	"zFIGeNQe+a6WMhbbX9BrbHtMZ2w8l0Vu88cEAgxXth3IaosLiDsRYTUxTDsHA+uR4/6xy+C3xmKCkD7C",
+	"PAgG/JXMmy1rzuV7Jl5IrF2xH1srxfiDmyMyt8O89gmn3OQmC4mB7S5v3gmYE9E/NVFM6G0Bc1TvHy94",
+	"78E8bit2xfSUW/9JC//ZWcnmrpirSu2xvFMV/CYWcrdu8aeKxG9eX7wlO7zvcbRpEyvXYYpR5RvMJbZE",
+	"Id5gL+bqQj7YkYj/7jl23ZJjGiUC8pfB6r88e3XhE3CBWyS5dMNLVaNj/WtZHz+4Mo5HwkdVoItku45Q",
+	"0sMPcUiHVPWe9IWmgX7yTn/SHj5pD21I/h8KamSS9Q7ad6duaptnspVOUBP4M0ylEMaBoZjqUqxN1hAB",
+	"tM1/8cp2fY8EALvY5Xmw8/+UHeDuXXdZFmT7rZ6VEGrhTuC287uPkyAUMcBOas4fSWxcoz+pRz3yRiqN",
+	"mXwwRAziuMzDmC5YrEeirNGH1nqj3tXPvGsaNcfr4JfOoH/UPRkJBglP8nLqEI4YBSZWVzikBGX4RrC+",
+	"0UgEIZjl0Nk1TbSN5quN6wEggDUIRYaOjIQbqLDCCcI8EDLBNVSqgcjFnCm0XvuaDnI6EoGhHwsXBNkQ",
+	"ypqKyiVor1TiVXO5gilkGcSx9chTawAos5UXgr8rcO25MAIuKrWd48Fgh9n0lcuecx9iDDb+MwkudmYN",
+	"NAt11oRmzrhS2/kTv8OQxwKNpUDd7tIgu318eO2cKyb/sOAux0jigFM9/MEcm39v0V2fRLFfIFAQLo+n",
+	"RlHpfQtFHiyLtC8zq0pf9kzfgRAWuTLb0qepCYPs4+3ZOZGSNqVXW1I9Ly1b8M/9WNyeErVkCZ/yJCBn",
+	"AY1rYXcLQufKEe3MlPX9z0LGS9Hzk53t57/pr4XbjdtfZatm7e9caQaJAee2JKZMAFHKjOiO98kLgqLJ",
+	"EeR8wHQwRmcEdz3UqwMzBuSKfxd361lz3sgs8zk+oN5NmRauMZkkVAOJSQcv5LBEtEDCCyP61vNJEpqt",
+	"6FoRxTTpgHvWphWHTG1Ye9Cqu0pCSRPtymrFc6rGC5mz2HkjGKSPhBoYdq4rljOXfoEkcmGLFYzEC8CZ",
+	"GJmoOiLFmCsThkmGnEQtRcKGrlmoSoJFMjEPA6bdQA8K43mIhVC2XzAXUpwX+G4QpwG50G1fzr/kB4qV",
+	"Nnq+yAM+xhVZ5eZ34boOurOFbyjmMddDwDuBdD8SeQFwERdfBLimHsqDcURi+32Ppmk8JLEVFBEtgcZh",
+	"j6boOUBTtN2paZ8Mf427kPmz0fnmX/A/hYNwlfrLJCpldhMzdHPKXS1u/3Do85MCCzg0mh3OoaHnsLmb",
+	"HO82WRNPLFMqh2JugHt0yrBuYGOyTnOH9k+reKeZJY/6/e0V4D42x8TNecGaAR5hVse/jXxXf4tiL7IW",
+	"c2yh3FcFuVaBXeM3t7M75kVrR1JQqmgjQhoq7dnESaQTFNIrM05ZSof+/inAgQQri+oZCoXmiFqCqwc+",
+	"73cgXTt+WtLgIaFk0D8aiQWjQgWFfCrEHdCFhbCRMiKoj4YFVCaFdiBJHFlZosPafmSO0EPDOW2R7AhS",
+	"AvmtJexdQbOIaCnJ1NBvTOHTRUcUzzLrjopcSSwLXwxjeKrRkUOS09VIpFTTMheXnudyJQhd0XWPnIUF",
+	"YEjn+Pq66+ofWjtEkCBqwtbSJvWxudXBwDMMcQyLQrnybpi90HxEPKvbpzJV1omzGJkl8WHpLqNXRics",
+	"g8x/NFfA00eis5E6SZGZxCozAfQWD4teSVemzNZBw8rlFKoTlqjbE3dJeFoxZwUlG21Bnl+RoCLLSFww",
+	"I9psFGnRkizopRmhhmB8RacMc39jaT9zNRy4ZiSwAhBIAsoWEVjA8C/ZElmSz/Y0OCaACUEEqLWaPQDj",
+	"nJixfJlzlDgoufjd08PB48+HYV0YTLXoF98IgUuaK0zLNhJMJNIHMpAOlDXmGqqPJoj/XDBz7K3sZFd0",
+	"QbVmefcEOxqJ04tvKx0BHysr5CifFiqnKywgNFlrhrXnLuiCkUu2jlxecz+pCKVc79Bz1adSPHuffebS",
+	"qI0E8Rfqs8+wCIsuclHOa9A/quVPh1GAkOqsWraUIgK0w+09Z8uMrqHbvGDxCRGSKJaYW2FWtPQYV6fj",
+	"LNE6nNMQqtSEDwZ1U6rT9QSACzLN+Gyuh7bWBHQNyCUzYLMHFlhuhU3XguYLBtBZl/g+h5kgxlrmBBLV",
+	"HfefQL4wnPc50/n68OlUszzuEm40lTKV1pQLruYg0nLwEB0C/Np2Zs6yJU6GpJgOHhvK4l+fywwBWJds",
+	"7a+WOTqdGOqHJOoq7o6EYauV4nbseilzbZ7ske9glKcotRy+XS/ZkPiXy2R8I2ELOtmyiIgYd7rOxvGM",
+	"kY4ZEbvsGErUVmoJdBzDREoTuyIqMelgdWWadU9s8H9cF6dii+8OugWyOWFOEO0c9/tdbyOCA8oV+ebt",
+	"i8MvScfQR1fzXrNDvI4Lml8C8gtqQKZdxDwdH33ZH4mOnfqCrk0f7wrp80HGo4P4hLx8Ybbo9PzlC6x5",
+	"xUSquj3ykgsIIDBjhQM5Er6OIkSJ/ip2aQZwewBHZyjcJV8uWXpiyyhD3azwhx7OCw851hGAfq3+iBvW",
+	"I6dQvkt5RyQmbBRrpEC2ZiLW+IISgBZl+GOQik+uzEcrApkPtWKKvqDiJRdQ03DNFPkRdBRoIYYP8H7s",
+	"igA6gIp72PG1su7lli/hdWBI5cvI6iqvok5tax5WK6O5t1w8SOXniPz1n/930q+14IuV+ZcBIxgUN7aH",
+	"afsP0A4uwpjDkghZ9lIyz9pMXeTLxgvuB1vQOsKqmYz0SQcfQVHsqIslEw/J6yBZo2HKuVz1yLmvJW5L",
+	"ei5B+ySQXrBC4SEbYIkrMvfV7kIocaLrCy6io5CM6moj1e3oOmMtsJFaD8F6dVz1zbIiG3RT6yFYsW6P",
+	"nMuV5bS22pfh1176MS0hqsWsD+DM8B6E/QL3s5cCba9iDbcARAR8sFLvt1CMxD0wD6Us4QuaYapVKMDm",
+	"6BoQYQFUKj7qPWaHj+IuhjoRQ9cKRUWqXJ5GCXVJvqZfG4J6JqYezUoyfsnCWqyYZQwryPoVgfwgEOnF",
+	"BQgxltNA8b9qtRJDZNeYl1aZST5QxNxpT1nhZOHrIqwBmRZ2SVO3hEhqqCseWa4h/m5LEpt1tHJ4yd5R",
+	"MTCyjy/CS0VA06wPwhA7zJQJcfLw0HH/yecoCwWl42xO1qUtpti61iEej+bnIZAFzwysMSYYN2sMUiKu",
+	"Y+ev//zfMMGNF7OxNLolrEi2ZA6Vei3gyrzyuN+3Ijd+DnPkdF0SK8Pogaehp9omUzVNDfr9yLwBGgtc",
+	"ZMybimKSLUFoFBZrv2JWe/QtQo0zTMQnxSFSE3Qinvj0pHQNktBEIpgaVCb0swSVCR8oaBRr4OSBux/K",
+	"Uee2NKY1erqsCFDmFJe81+vFbt/QJngNqzAciTiOR+JXVpbBjgOqu5xLLUEqODwiHctaN1lodyTM8Y6c",
+	"1oQKZZUfONIfeZoQOQoDGXxgKyPBzfMsenkU9XuPo36vf9QfRNHOJ/pPvmx+YhAd9frmiUH/cfMTj6IB",
+	"PnF8dARP4Olxv0fw8uN+9N1hv3882PLA0aNH+MCjaGAXdAvG4LzYPyIrkPh/z9YHm+Y6czLgpHkxEFgG",
+	"po52mjBAp7aY8z6wbtA+owmOVsmht43rDkovtR2bD4AAswoto0RKtP5WcH4pid9BVZ9yiF5yN6OThvnU",
+	"wl+2DchJ/60X7bV74f29JR8pAtBudOAUo2oDmwsBnB/rzKdIIs2cF1y8ZGKm56FBOUzD9/FCCc+LmyII",
+	"wbRhAwddAFLuq8R0jLxpaXVutfmR2LDhROiNsi9Z1uAz09sNsy6KABbTZCvYXOgYjAeugiFXTu+xvXnk",
+	"lZyCu8kD0FC7rhovjALdBkkzkTJjVMBhaAfeAaBE4RIz54X4d5mW+RNw5xeYOlIqDfWihbP5B5c59GAU",
+	"u2DTYeBlg/Nij4pU2x0Yjt44xzN1BsAhjNgJ/bZSRK1AAJpdvX8Gv6v4p3OWMA6xi1WCtq1Q6S1knfNC",
+	"3HcSGTOs7bT6E37ml1CEyvoD8PDe6RW7a2CNhdJU6q04+0r19ljcRY+cl4VVRqJeGs6Joc6KpbyXbTOC",
+	"I6gbZ/NU2GrxPPc+wbDgTY88bURPuIo72OqMGxkFNEo7CIdSrFSNqVZL8EHBMsN8NlyFRWMCNIW3r5+H",
+	"KKOReMZyQ1vqmWwcpfnDaRR6IoqsEhuuRiJlCTckKyivZ1MQcmF2EjrzxUNG4qgX9LKqDHFrkPeQxG5S",
+	"8clIDMImEllkGMHnnay1xx/Ve/Q5S7iwIJnaG8fhG9aDYRZjYSi3lgDc8hHjpkVreYII81pbj3sh9rEZ",
+	"d+OTEFUi462hwp4GzNMT+B5wXGFvUT3rDLxe6bLjExVvJpXJGTplzNGZ0OQS7Jpg5Apy1YzE5+HiVMLl",
+	"hySGnJIK1Ccz+S/CZ4MofOtcovaoROhX8oH4OLXuEPq2Z8jQqwqyzkPn4CBD6w6UJafEx4ZaWhJvZ5bn",
+	"HhPxS+SZbnRbq67Az5/Y58/PPi+qyaEQ8VmIO8XaIC+1l/jDgTeWGJT0B4hBaI4x7Zv7SmsJ1hzZUKVx",
+	"T3V7BCCPXJF3GP/ILU0TCavz0UrVMpu4yjnLSotQp+TuciUwRbnMwxguzy1KmKG1MFs9uqxVVqJvtb85",
+	"D+qw25HYCg4iu7FBZkWrJJqrDcECiqfb5XaAQ+Swmi+Yg0t6f78T/SGVG7BacMXyZE62pcOzDhAMq7e9",
+	"dhRjAUmsC2Vxt0fcWbAbXkKIAdGgFcumwCI0vWQgJHoOUvL9QtwIE7L58G1eMax0yrLUoodMX5CM3qdp",
+	"s641ezROvMOK8LSCCQpROuAtAKOFkfMMT7SJaBzzM9zOAoznVIWNWlbupoacGJcSZ7fdvmwX8IPYyN0b",
+	"AO2ofqaMXzfzLy+P4FHheaX+oYXRfArZ/2Ruun/tN039adQyMDy9c7H8es4W+3DzHXqx7ejhD94n9/6O",
+	"NeNpCUpAchkRmuRSQa1lvG8uYtlGNEeg0m4ozpBsZRfz8F1ZRmrLgoDWy9MyCSeOCzOmOAaAuSRLsMIW",
+	"KR2p2FZBfZOsvDx7dVGZ+gZjc8AH58uphsf5Ed1NjNx96gjVtfmkJvziiwfWbymtndY7UxgAUtxSSwiL",
+	"HSlVQHWKnIpULggikzsefnw0+JJMuFbd8i7N+BUTiGhWtnCyYknOtM1CB+6t0qElsvWJR1kAngSg5uB+",
+	"NSKhhS2PxJyqOSb4A3NaJmdGeNsuhr01Q72nTALQ9s8kR0HfNzg8YZuiUt2xG6DmgHASv/xUcJ+EnPsn",
+	"PnC3CcXDEhAaSypaBsni0951lrKMadaavpyzK3lpEVvQ0onFT5Vot/5RtzRI24QsNocXJB4ZiQC651S5",
+	"HNpNLb1COaOJVDyD4TpScXOo/AcIAd98Y1S7BvZ/vLlauCyfAsl/Ebl/zVZ8+DXJmUjVfebpVTZ1xZbc",
+	"vNXg8MBDAzX5RkJOjQBuz3+QYjFWmVyy2ELHJlSxEJcPNQ7AwIYSy8UzaKn0EsXujbg0+JfDNc+tuEjl",
+	"quxw0O+eQDSWzmXmoKiKQ0rbn/5lQC6ekc6K5oKLGUZa/PQvj+BLtM91IyyZT+hIXMzZak5zTRL4b+fs",
+	"4jX54ssv+ocDO53vmNIz8L+DmerocKDKxiNydPhIRSMxOByoiJwfHquIHB8eocJ01L8mHfQedcE+wcxC",
+	"UnQjlgurqp49hR4zQBKFiYpPasnz0eSRca+mjETsOxiSKc0Uphi+4jJDsx+mXgLjpsvOHySjGgkurmQG",
+	"5kMIk5lCbmIEI6/kxuZAXmBbu8tt4XAkYtwPMGeKIstsxmXskqtyEXrkKWJ4yRHAd8tZjYQ52Cck1nkh",
+	"EowOdwkARHgiwPkE2QA6guYAUtduLQxDgDMJ14pYhh4F8iEguRIWbRaVkCsxEn84JcDI0yJnCqEZlXIS",
+	"EcnZrMjMO02VJZpVUxjNFj6yC1Z5N5lXPkY+5aY+/GxbYx1hnd741xoQmM8B4WboR2hEjwgXYOG/2gqj",
+	"NQfjDhCgL9GhUOvd+he2967lHfT9O7kiCyrW9TsZ1fJxVAlohAGmOiDS20bpfm9OHjAIcwcMKqkDBh85",
+	"dQDep23WYpZzAHho5Wcc+dAFkZak8VNKgbsXi57lfKqdxGEj792Fhno94MOyYkaNmZvNqXLe+6oCjVLX",
+	"fVZ0B23b9FIBGmC/cQ2YW7KFiKQ5XaHrrJR1QEoZhrKDDaZFIyyyMgjmYARPu/kCZSLMqWNFIVxnjwhy",
+	"rYHogbeCgU07Y7boPOIOIbo+M7z7vEEYMeIKjHoX89taDf4TD/zEA/9/zAP5gs7YQ3U1+831IqsywIbY",
+	"iYZCDoY0fGJj91E5uiS9CNMB2h0RpGJ3zJVM3ywpcq7XQBUnjOYsf1ro+cHwj9+bc2Q7rN+HsyAGu8AS",
+	"10E9sgDy0SmVcdXtBVkUC6EawtZeYCaasC130dADH4AbDRdVQZN2TTYbPRNXLFeQUcumMg9KclcD1MP2",
+	"wsznm43+4akrxANGjaB8dTVVJFs1vVxCkKrJjyIPNAhwP55vJmXepEov1r220U1zic2oxCWVuU7qlVl8",
+	"6++ShoYxvTLkCLY5DL1owXNSZnImS5nxhLNwWV3Sw4ZW35yhVSt83Jq1GtgBv2KCKZ+ICf5cMJ3zxE2L",
+	"K5LKxMfFVULhcFu/f///BQAA//8=",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
