@@ -193,11 +193,15 @@ func TestNISTNonlinear(t *testing.T) {
 // runNISTNonlinear solves file from both starts with the given iteration
 // caps and checks the result as TestNISTNonlinear says.
 func runNISTNonlinear(t *testing.T, file string, maxIter [2]int) {
+	runNISTNonlinearWith(t, file, nistModels[file], maxIter)
+}
+
+// runNISTNonlinearWith is runNISTNonlinear with the given curve.
+func runNISTNonlinearWith(t *testing.T, file string, model Curve, maxIter [2]int) {
 	{
 		d := readNISTNonlinear(t, file)
-		model := nistModels[file]
-		if model.p != len(d.params) {
-			t.Fatalf("%s: model has %d parameters, file certifies %d", file, model.p, len(d.params))
+		if model.NumParams() != len(d.params) {
+			t.Fatalf("%s: model has %d parameters, file certifies %d", file, model.NumParams(), len(d.params))
 		}
 		for s := 0; s < 2; s++ {
 			name := file + "/start" + strconv.Itoa(s+1)
@@ -246,4 +250,14 @@ func TestNISTNonlinearMGH10Long(t *testing.T) {
 		t.Skip("long iteration run; skipped with -short")
 	}
 	runNISTNonlinear(t, "MGH10.dat", [2]int{10000, nistMaxIter})
+}
+
+// TestNISTNonlinearCalibrationModels solves the StRD files whose models are
+// calibration models with the package's own curves and Jacobians:
+// Misra1a and BoxBOD with ExpSaturation, DanWood with Power (same checks
+// and expected outcomes as TestNISTNonlinear).
+func TestNISTNonlinearCalibrationModels(t *testing.T) {
+	for file, m := range map[string]Model{"Misra1a.dat": ExpSaturation, "BoxBOD.dat": ExpSaturation, "DanWood.dat": Power} {
+		runNISTNonlinearWith(t, file, curveOf(m), [2]int{nistMaxIter, nistMaxIter})
+	}
 }
