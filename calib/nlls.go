@@ -113,7 +113,8 @@ type NLLSResult struct {
 //
 //	min ‖ [√W·J·D⁻¹; √λ·I]·z + [−√W·r; 0] ‖,  δ = D⁻¹z,
 //
-// by Householder QR (gonum mat.QR) of the augmented matrix, where r is the
+// by Householder QR (gonum mat.QR): one factorisation of √W·J·D⁻¹ per
+// iteration, then one of the small [R; √λ·I] per trial λ, where r is the
 // residual vector, J the analytic Jacobian over the free parameters and
 // D = diag(dⱼ), dⱼ the largest ‖√W·Jⱼ‖ seen so far (so the damping is
 // invariant to rescaling the parameters). λ starts at 1e-3 and follows
@@ -218,17 +219,21 @@ type nllsState struct {
 	free    []int
 	beta    []float64 // current parameters (all p)
 	trial   []float64
-	r       []float64  // √W·(y − f) at beta
-	rt      []float64  // the same at trial
-	jac     *mat.Dense // √W·J over the free parameters, n×k
-	d       []float64  // Moré's column scales
-	grad    []float64  // scratch of length p
+	r       []float64 // √W·(y − f) at beta
+	rt      []float64 // the same at trial
+	jac     []float64 // √W·J over the free parameters, n×k row-major
+	d       []float64 // Moré's column scales
+	grad    []float64 // scratch of length p
 	ss      float64
-	ynorm   float64 // ‖√W·y‖
-	aug     *mat.Dense
-	rhs     *mat.VecDense
+	ynorm   float64       // ‖√W·y‖
+	big     *mat.Dense    // [√W·J·D⁻¹ | √W·r], n×(k+1), factorised once per iteration
+	bigR    mat.Dense     // its R factor
+	rk      []float64     // leading k×k block of R, row-major
+	qtr     []float64     // first k entries of Qᵀ·√W·r
+	small   *mat.Dense    // [R; √λ·I], 2k×k
+	srhs    *mat.VecDense // [Qᵀ·√W·r; 0]
 	z       *mat.VecDense
-	qr      mat.QR
+	qr, sqr mat.QR
 	active  []bool // free parameter held at a bound this iteration
 	atBound []bool
 }
@@ -242,11 +247,14 @@ func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nlls
 		trial:   make([]float64, p),
 		r:       make([]float64, n),
 		rt:      make([]float64, n),
-		jac:     mat.NewDense(n, max(k, 1), nil),
+		jac:     make([]float64, n*k),
 		d:       make([]float64, k),
 		grad:    make([]float64, p),
-		aug:     mat.NewDense(n+max(k, 1), max(k, 1), nil),
-		rhs:     mat.NewVecDense(n+max(k, 1), nil),
+		big:     mat.NewDense(n, k+1, nil),
+		rk:      make([]float64, k*k),
+		qtr:     make([]float64, k),
+		small:   mat.NewDense(2*max(k, 1), max(k, 1), nil),
+		srhs:    mat.NewVecDense(2*max(k, 1), nil),
 		z:       mat.NewVecDense(max(k, 1), nil),
 		active:  make([]bool, k),
 		atBound: make([]bool, p),
@@ -283,7 +291,7 @@ func (s *nllsState) evalJacobian() bool {
 		f := s.c.Eval(xi, s.beta, s.grad)
 		s.r[i] = s.sw[i] * (s.y[i] - f)
 		for l, j := range s.free {
-			s.jac.Set(i, l, s.sw[i]*s.grad[j])
+			s.jac[i*len(s.free)+l] = s.sw[i] * s.grad[j]
 		}
 	}
 	s.ss = 0
@@ -296,7 +304,7 @@ func (s *nllsState) evalJacobian() bool {
 	for l := range s.free {
 		var nn float64
 		for i := range s.x {
-			v := s.jac.At(i, l)
+			v := s.jac[i*len(s.free)+l]
 			nn += v * v
 		}
 		if !finite(nn) {
@@ -326,7 +334,7 @@ func (s *nllsState) iterate() NLLSResult {
 		for l, j := range s.free {
 			var gl, cn float64
 			for i := 0; i < n; i++ {
-				a := s.jac.At(i, l)
+				a := s.jac[i*k+l]
 				gl += a * s.r[i]
 				cn += a * a
 			}
@@ -347,6 +355,7 @@ func (s *nllsState) iterate() NLLSResult {
 			return res
 		}
 		// Trial steps with increasing damping until one lowers SS.
+		s.factor()
 		for {
 			ok := s.step(lambda, delta)
 			var pred, act, ratio float64
@@ -402,47 +411,70 @@ func (s *nllsState) iterate() NLLSResult {
 // nllsEps is the float64 machine epsilon.
 const nllsEps = 0x1p-52
 
-// step solves the damped least-squares problem for λ into delta (in
+// factor computes, once per iteration, the Householder QR factorisation
+// of [√W·J·D⁻¹ | √W·r] (columns of held parameters zeroed): its leading
+// k×k block R and the first k entries of Qᵀ·√W·r reduce every trial step
+// of the iteration to a 2k×k problem (as in Moré's lmpar).
+func (s *nllsState) factor() {
+	n, k := len(s.x), len(s.free)
+	raw := s.big.RawMatrix()
+	for i := 0; i < n; i++ {
+		row := raw.Data[i*raw.Stride : i*raw.Stride+k+1]
+		for l := 0; l < k; l++ {
+			v := 0.0
+			if !s.active[l] {
+				v = s.jac[i*k+l] / s.scale(l)
+			}
+			row[l] = v
+		}
+		row[k] = s.r[i]
+	}
+	s.qr.Factorize(s.big)
+	s.qr.RTo(&s.bigR)
+	for j := 0; j < k; j++ {
+		for l := 0; l < k; l++ {
+			s.rk[j*k+l] = s.bigR.At(j, l)
+		}
+		s.qtr[j] = s.bigR.At(j, k)
+	}
+}
+
+// scale returns Moré's scale of free parameter l (1 for a column that has
+// been zero throughout).
+func (s *nllsState) scale(l int) float64 {
+	if s.d[l] == 0 {
+		return 1
+	}
+	return s.d[l]
+}
+
+// step solves the damped least-squares problem for λ,
+// min ‖[R; √λ·I]·z − [Qᵀ·√W·r; 0]‖ (by QR, mat.QR), into delta = D⁻¹z (in
 // parameter units, zero for held parameters) and sets s.trial to β + δ
 // projected onto the box. It reports whether the solve gave finite values.
 func (s *nllsState) step(lambda float64, delta []float64) bool {
-	n, k := len(s.x), len(s.free)
+	k := len(s.free)
 	sl := math.Sqrt(lambda)
-	for l := 0; l < k; l++ {
-		dl := s.d[l]
-		if dl == 0 {
-			dl = 1
+	raw := s.small.RawMatrix()
+	for j := 0; j < 2*k; j++ {
+		row := raw.Data[j*raw.Stride : j*raw.Stride+k]
+		clear(row)
+		if j < k {
+			copy(row, s.rk[j*k:j*k+k])
+			s.srhs.SetVec(j, s.qtr[j])
+			continue
 		}
-		for i := 0; i < n; i++ {
-			v := s.jac.At(i, l) / dl
-			if s.active[l] {
-				v = 0
-			}
-			s.aug.Set(i, l, v)
-		}
-		for m := 0; m < k; m++ {
-			s.aug.Set(n+m, l, 0)
-		}
-		s.aug.Set(n+l, l, sl)
-		if s.active[l] {
-			s.aug.Set(n+l, l, 1)
+		s.srhs.SetVec(j, 0)
+		row[j-k] = sl
+		if s.active[j-k] {
+			row[j-k] = 1
 		}
 	}
-	for i := 0; i < n; i++ {
-		s.rhs.SetVec(i, s.r[i])
-	}
-	for m := 0; m < k; m++ {
-		s.rhs.SetVec(n+m, 0)
-	}
-	s.qr.Factorize(s.aug)
-	_ = s.qr.SolveVecTo(s.z, false, s.rhs) // a Condition error still leaves a usable z; non-finite z is caught below
+	s.sqr.Factorize(s.small)
+	_ = s.sqr.SolveVecTo(s.z, false, s.srhs) // a Condition error still leaves a usable z; non-finite z is caught below
 	copy(s.trial, s.beta)
 	for l, j := range s.free {
-		dl := s.d[l]
-		if dl == 0 {
-			dl = 1
-		}
-		v := s.z.AtVec(l) / dl
+		v := s.z.AtVec(l) / s.scale(l)
 		if s.active[l] {
 			v = 0
 		}
@@ -462,10 +494,11 @@ func (s *nllsState) step(lambda float64, delta []float64) bool {
 // summed in that form so that it does not cancel against ‖r‖².
 func (s *nllsState) predicted(delta []float64) float64 {
 	var pred float64
+	k := len(s.free)
 	for i := range s.x {
 		var v float64
-		for l := range s.free {
-			v += s.jac.At(i, l) * delta[l]
+		for l, jl := range s.jac[i*k : i*k+k] {
+			v += jl * delta[l]
 		}
 		pred += v * (2*s.r[i] - v)
 	}
@@ -546,7 +579,7 @@ func (s *nllsState) covariance(sd float64) ([]float64, bool) {
 	for l := 0; l < k; l++ {
 		var nn float64
 		for i := 0; i < n; i++ {
-			v := s.jac.At(i, l)
+			v := s.jac[i*k+l]
 			nn += v * v
 		}
 		if !(nn > 0) || math.Sqrt(nn)*math.Abs(s.beta[s.free[l]]) <= 1e-12*s.ynorm {
@@ -554,7 +587,7 @@ func (s *nllsState) covariance(sd float64) ([]float64, bool) {
 		}
 		sc[l] = 1 / math.Sqrt(nn)
 		for i := 0; i < n; i++ {
-			a.Set(i, l, s.jac.At(i, l)*sc[l])
+			a.Set(i, l, s.jac[i*k+l]*sc[l])
 		}
 	}
 	var qr mat.QR
