@@ -231,15 +231,6 @@ func oneLine(err error) string {
 	return strings.Join(parts, " ")
 }
 
-// redactURL hides a password in a database URL.
-func redactURL(u string) string {
-	if i := strings.Index(u, "://"); i >= 0 {
-		rest := u[i+3:]
-		if at := strings.LastIndex(rest, "@"); at >= 0 {
-			if colon := strings.Index(rest[:at], ":"); colon >= 0 {
-				return u[:i+3] + rest[:colon] + ":xxxxx" + rest[at:]
-			}
-		}
-	}
-	return u
-}
+// redactURL names where a database connection string points, without any
+// password (store.DescribeURL).
+func redactURL(u string) string { return store.DescribeURL(u) }
