@@ -84,7 +84,7 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 		s.limiter = newTokenLimiter(cfg.RateLimit, cfg.RateBurst)
 	}
 	e.HTTPErrorHandler = s.errorHandler
-	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware,
+	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware, s.framingMiddleware,
 		s.timeoutMiddleware, s.bodyLimitMiddleware, s.authMiddleware, s.rateLimitMiddleware, validator)
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
 	s.registerUI(e)

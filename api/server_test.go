@@ -88,7 +88,11 @@ func newEnvDB(t testing.TB, cfg api.Config, db *store.DB) *env {
 	if err != nil {
 		t.Fatalf("api.New: %v", err)
 	}
-	srv := httptest.NewServer(s.Handler())
+	// As the service serves: through the framing guard (api.FramingGuard).
+	srv := httptest.NewUnstartedServer(s.Handler())
+	srv.Listener = api.FramingGuard(srv.Listener)
+	srv.Config.ConnContext = api.FramingContext
+	srv.Start()
 	t.Cleanup(func() {
 		srv.Close()
 		if t.Failed() {

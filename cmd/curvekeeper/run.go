@@ -158,6 +158,7 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 		WriteTimeout:      cfg.RequestTimeout + 15*time.Second,
 		IdleTimeout:       120 * time.Second,
 		ErrorLog:          slog.NewLogLogger(log.Handler(), slog.LevelWarn),
+		ConnContext:       api.FramingContext, // with FramingGuard below: refuse two framings
 	}
 	scheme := "http"
 	if tlsCfg != nil {
@@ -177,7 +178,7 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 			errc <- hs.ServeTLS(ln, "", "")
 			return
 		}
-		errc <- hs.Serve(ln)
+		errc <- hs.Serve(api.FramingGuard(ln))
 	}()
 
 	addr := ln.Addr().String()
