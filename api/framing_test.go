@@ -9,6 +9,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"curvekeeper/api"
 )
 
 // rawExchange writes raw on one connection and reads every response the
@@ -81,5 +83,30 @@ func TestFramingGuardFollowsPipelinedBodies(t *testing.T) {
 	want := []int{200, 401, 401, 200, 400}
 	if fmt.Sprint(codes) != fmt.Sprint(want) {
 		t.Errorf("statuses %v, want %v", codes, want)
+	}
+}
+
+// TestChunkedBodyOverLimitIs413: a body without Content-Length (chunked) that
+// passes the limit gets 413, as one with a Content-Length does.
+func TestChunkedBodyOverLimitIs413(t *testing.T) {
+	t.Parallel()
+	e := newEnvConfig(t, api.Config{BodyLimit: 1000})
+	for _, path := range []string{"/v1/runs", "/v1/methods"} {
+		big := `{"method":"` + strings.Repeat("a", 3000) + `"}`
+		// An io.Reader of unknown length makes the client send it chunked.
+		req, err := http.NewRequest(http.MethodPost, e.srv.URL+path, io.MultiReader(strings.NewReader(big)))
+		if err != nil {
+			t.Fatal(err)
+		}
+		req.Header.Set("Authorization", "Bearer "+e.admin)
+		req.Header.Set("Content-Type", "application/json")
+		resp, err := e.srv.Client().Do(req)
+		if err != nil {
+			t.Fatal(err)
+		}
+		resp.Body.Close()
+		if req.ContentLength != 0 || resp.StatusCode != http.StatusRequestEntityTooLarge {
+			t.Errorf("POST %s chunked (length %d), %d bytes over a limit of 1000: status %d, want 413", path, req.ContentLength, len(big), resp.StatusCode)
+		}
 	}
 }
