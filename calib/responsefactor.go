@@ -262,15 +262,7 @@ func (m *RFModel) Predict(responses, isResponses []float64, isConc, dilution flo
 		p.Interval.High = dilution * c * y0 / (m.Mean - half)
 		p.Interval.Bounded = true
 	}
-	switch {
-	case x0 < m.Range.Low:
-		p.Flags = append(p.Flags, FlagBelowRange, FlagExtrapolated)
-	case x0 > m.Range.High:
-		p.Flags = append(p.Flags, FlagAboveRange, FlagExtrapolated)
-	}
-	if x0 < 0 {
-		p.Flags = append(p.Flags, FlagNegative)
-	}
+	p.Flags = m.Range.appendFlags(p.Flags, x0)
 	if !p.Interval.Bounded {
 		p.Flags = append(p.Flags, FlagUnbounded)
 	}
@@ -295,4 +287,20 @@ func ResponseRatios(analyte, is []float64) ([]float64, error) {
 		r[i] = analyte[i] / is[i]
 	}
 	return r, nil
+}
+
+// appendFlags appends the flags of an undiluted estimate x0 against the
+// working range: FlagBelowRange or FlagAboveRange with FlagExtrapolated, and
+// FlagNegative.
+func (r Range) appendFlags(flags []string, x0 float64) []string {
+	switch {
+	case x0 < r.Low:
+		flags = append(flags, FlagBelowRange, FlagExtrapolated)
+	case x0 > r.High:
+		flags = append(flags, FlagAboveRange, FlagExtrapolated)
+	}
+	if x0 < 0 {
+		flags = append(flags, FlagNegative)
+	}
+	return flags
 }
