@@ -198,6 +198,9 @@ func parse(code string) (Unit, error) {
 		}
 		op, rest = nextOp, next
 	}
+	if !(u.Factor > 0) || math.IsInf(u.Factor, 0) || u.Factor < 1e-300 {
+		return Unit{}, fmt.Errorf("the unit's size overflows a float64")
+	}
 	sort.Strings(annots)
 	u.annotations = strings.Join(annots, "")
 	return u, nil

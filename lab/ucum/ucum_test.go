@@ -103,7 +103,7 @@ func TestCaseSensitive(t *testing.T) {
 }
 
 func TestUnknownRefused(t *testing.T) {
-	for _, code := range []string{"banana", "", "mg/", "/", "mg//L", "mg/(L)", "10*3/L", "ppm", "AU", "{cps", "kmin", "c%", "mg.banana", "m0"} {
+	for _, code := range []string{"banana", "", "mg/", "/", "mg//L", "mg/(L)", "10*3/L", "ppm", "AU", "{cps", "kmin", "c%", "mg.banana", "m0", "Ym9.Ym9", "ym9.ym9"} {
 		err := Validate(code)
 		if err == nil {
 			t.Errorf("%q accepted", code)
