@@ -104,6 +104,9 @@ func FitAverageRF(points []RFPoint, opt RFOptions) (*RFModel, error) {
 		if internal {
 			rf = (p.Response * p.ISConc) / (p.ISResponse * p.Conc)
 		}
+		if math.IsInf(rf, 0) || math.IsNaN(rf) {
+			return nil, inputErr(f, "response factor overflows: %v/%v", p.Response, p.Conc)
+		}
 		m.RFs = append(m.RFs, rf)
 		m.Levels = append(m.Levels, p.Level)
 		levels[p.Level+"\x00"+strconv.FormatFloat(p.Conc, 'g', -1, 64)] = true
@@ -120,8 +123,8 @@ func FitAverageRF(points []RFPoint, opt RFOptions) (*RFModel, error) {
 		return nil, inputErr("points", "the average response factor needs at least two non-zero readings, got %d", m.K)
 	}
 	m.Mean, m.SD = meanSD(m.RFs)
-	if !(m.Mean > 0) {
-		return nil, inputErr("points", "mean response factor must be > 0, got %v", m.Mean)
+	if !(m.Mean > 0) || math.IsInf(m.Mean, 0) || math.IsInf(m.SD, 0) || math.IsNaN(m.SD) {
+		return nil, inputErr("points", "mean response factor must be finite and > 0 with a finite SD, got %v and %v", m.Mean, m.SD)
 	}
 	m.RSDPct = 100 * m.SD / m.Mean
 	nLevels := len(levels)
@@ -249,6 +252,9 @@ func (m *RFModel) Predict(responses, isResponses []float64, isConc, dilution flo
 	root := math.Sqrt(1/float64(mr) + 1/float64(m.K))
 	rel := m.SD / m.Mean * root
 	x0 := y0 * c / m.Mean
+	if math.IsInf(x0*dilution, 0) || math.IsNaN(x0*dilution) {
+		return RFPrediction{}, inputErr("responses", "the concentration overflows: mean response %v", y0)
+	}
 	p := RFPrediction{Concentration: dilution * x0, MeanResponse: y0, Readings: mr, Dilution: dilution,
 		RelativeSE: rel, StandardError: math.Abs(dilution*x0) * rel, Method: "average_rf_t_pivot",
 		Interval: Interval{Level: m.Confidence}, Cautions: Cautions()}

@@ -266,3 +266,37 @@ func TestRFStatsmodelsGolden(t *testing.T) {
 	cmp("ratio line residual SD", rep.ResidualSD, g.RatioLine.ResidualSD, 1e-11)
 	cmp("ratio line R²", rep.RSquared, g.RatioLine.RSquared, 1e-13)
 }
+
+// FuzzAverageRF: FitAverageRF and Predict never panic; a model has RF̄ > 0,
+// a finite %RSD, and a bounded interval that contains x̂0.
+func FuzzAverageRF(f *testing.F) {
+	f.Add(1.0, 10.0, 2.0, 22.0, 4.0, 36.0, 55.0, 5000.0)
+	f.Add(0.0, 1.0, 1.0, 1.0, 1e-300, 1e300, 1.0, 0.0)
+	f.Fuzz(func(t *testing.T, c1, a1, c2, a2, c3, a3, y0, is float64) {
+		pts := []RFPoint{{"1", c1, a1, 0, 0}, {"2", c2, a2, 0, 0}, {"3", c3, a3, 0, 0}}
+		if is > 0 {
+			for i := range pts {
+				pts[i].ISConc, pts[i].ISResponse = 10, is
+			}
+		}
+		m, err := FitAverageRF(pts, RFOptions{MinLevels: 2})
+		if err != nil {
+			return
+		}
+		if !(m.Mean > 0) || math.IsNaN(m.RSDPct) {
+			t.Fatalf("model %+v", m)
+		}
+		var p RFPrediction
+		if m.Internal {
+			p, err = m.Predict([]float64{y0}, []float64{is}, 10, 1)
+		} else {
+			p, err = m.Predict([]float64{y0}, nil, 0, 1)
+		}
+		if err != nil {
+			return
+		}
+		if p.Interval.Bounded && !(p.Interval.Low <= p.Concentration && p.Concentration <= p.Interval.High) {
+			t.Fatalf("x̂0 %v outside [%v, %v]", p.Concentration, p.Interval.Low, p.Interval.High)
+		}
+	})
+}
