@@ -153,6 +153,9 @@ func TestRound(t *testing.T) {
 			t.Errorf("Round(%v) value %v, want %v", c.v, val, want)
 		}
 	}
+	if _, _, err := (Rounding{SignificantFigures: 1}).Round(1.7e308); err == nil {
+		t.Error("1.7e308 rounded up to 2e308 without an error")
+	}
 	for _, r := range []Rounding{{SignificantFigures: -1}, {SignificantFigures: 13}, {SignificantFigures: 2, UseDecimals: true}, {Mode: "up"}, {UseDecimals: true, Decimals: -1}} {
 		if _, _, err := r.Round(1); err == nil {
 			t.Errorf("rule %+v accepted", r)
