@@ -3,6 +3,8 @@ package sequence
 import (
 	"fmt"
 	"strconv"
+
+	"curvekeeper/calib"
 )
 
 // carryOver checks the blank injected right after the highest calibration
@@ -117,4 +119,40 @@ func applyBlank(ev *Evaluation, inj []Injection, cfg Config) {
 		s.Blank, s.Net = bc.Value, s.Result-bc.Value
 	}
 	ev.Blank = bc
+}
+
+// checkIS checks each sample's internal-standard response against the mean
+// IS response of the calibration standards (calib.ISRecovery), when the
+// standards carry IS responses; a sample outside the window gets a note,
+// and its state is left to the reviewer.
+func checkIS(ev *Evaluation, inj []Injection, w calib.ISWindow) error {
+	var cal []float64
+	for _, in := range inj {
+		if in.Kind == CalibrationStandard && in.ISResponse > 0 {
+			cal = append(cal, in.ISResponse)
+		}
+	}
+	if len(cal) == 0 {
+		return nil
+	}
+	byPos := make(map[int]float64, len(inj))
+	for _, in := range inj {
+		byPos[in.Position] = in.ISResponse
+	}
+	for k := range ev.Samples {
+		s := &ev.Samples[k]
+		is := byPos[s.Position]
+		if is == 0 {
+			continue
+		}
+		c, _, err := calib.ISRecovery(cal, []float64{is}, w)
+		if err != nil {
+			return inputErr("config.is_window", "%v", err)
+		}
+		s.IS, s.HasIS = c[0], true
+		if !c[0].Passed {
+			s.Notes = append(s.Notes, c[0].Detail)
+		}
+	}
+	return nil
 }

@@ -44,8 +44,9 @@ var sources = []string{
 // cfg.Verification; a blank passes when |result| ≤ its limit (a strongly
 // negative blank points at a baseline fault as much as a high one).
 // Method and calibration blank failures, frequency breaches and a failed
-// carry-over check are reported and noted on every sample; they do not
-// change its state, which a qualified reviewer decides.
+// carry-over check are reported and noted on every sample, and a sample's
+// internal-standard recovery outside cfg.ISWindow on that sample; they do
+// not change its state, which a qualified reviewer decides.
 func Evaluate(seq Sequence, cfg Config) (Evaluation, error) {
 	if err := normalise(&cfg); err != nil {
 		return Evaluation{}, err
@@ -69,6 +70,9 @@ func Evaluate(seq Sequence, cfg Config) (Evaluation, error) {
 		e.noteAll("carry-over check failed: " + ev.CarryOver.Detail)
 	}
 	applyBlank(&ev, inj, cfg)
+	if err := checkIS(&ev, inj, cfg.ISWindow); err != nil {
+		return Evaluation{}, err
+	}
 	if ev.Blank.Policy != SubtractNone && !ev.Blank.Applied {
 		e.noteAll(ev.Blank.Statement)
 	}

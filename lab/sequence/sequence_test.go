@@ -329,3 +329,30 @@ func TestRefused(t *testing.T) {
 		}
 	}
 }
+
+// TestISRecovery: the standards' IS responses 50000, 49000, 51000 average
+// 50000; a sample reading 29000 recovers 58 % (outside 60–125 %, common
+// ICP-MS practice, from memory) and is noted; one at 62500 recovers 125 %
+// and passes (ends included). By hand.
+func TestISRecovery(t *testing.T) {
+	in := workedBatch()
+	in[6].ISResponse = 29000 // S1
+	in[7].ISResponse = 62500 // S2
+	ev, err := Evaluate(Sequence{Injections: in, Complete: true}, Config{ReportingLimit: 0.5})
+	if err != nil {
+		t.Fatal(err)
+	}
+	s1, s2, s3 := ev.Samples[0], ev.Samples[1], ev.Samples[2]
+	if !s1.HasIS || s1.IS.Passed || math.Abs(s1.IS.RecoveryPct-58) > 1e-12 || !strings.Contains(strings.Join(s1.Notes, " "), "58.0 % outside 60–125 %") {
+		t.Errorf("S1: %+v, notes %v", s1.IS, s1.Notes)
+	}
+	if !s2.HasIS || !s2.IS.Passed || math.Abs(s2.IS.RecoveryPct-125) > 1e-12 || len(s2.Notes) != 0 {
+		t.Errorf("S2: %+v, notes %v", s2.IS, s2.Notes)
+	}
+	if s3.HasIS {
+		t.Errorf("S3 has no IS response but was checked: %+v", s3.IS)
+	}
+	if s1.State != Reportable {
+		t.Errorf("S1's state %s: an IS failure is noted, not decided here", s1.State)
+	}
+}

@@ -13,6 +13,8 @@ package sequence
 import (
 	"fmt"
 	"time"
+
+	"curvekeeper/calib"
 )
 
 // Kind is the role of an injection in the sequence.
@@ -126,6 +128,12 @@ type Config struct {
 	ISReference float64
 
 	BlankSubtraction BlankSubtraction // "": none
+
+	// ISWindow is the accepted IS recovery of a sample against the mean IS
+	// response of the calibration standards; zero: 60–125 % (common ICP-MS
+	// practice, from memory; calib.ISRecovery). Checked only when the
+	// standards carry IS responses.
+	ISWindow calib.ISWindow
 }
 
 // Sequence is the input: the injections and whether the sequence is
@@ -163,7 +171,11 @@ type SampleResult struct {
 	Result   float64
 	Blank    float64 // subtracted blank; 0 under SubtractNone
 	Net      float64 // Result − Blank
-	Notes    []string
+	// IS is the internal-standard recovery check, when the standards and
+	// the sample carry IS responses (HasIS).
+	IS    calib.ISCheck
+	HasIS bool
+	Notes []string
 }
 
 // CheckResult is the verdict of one ICV, CCV or blank.

@@ -17,7 +17,10 @@
 // [ppth], [ppm], [ppb], [pptr] (no prefix). Prefixes: Y Z E P T G M k h da d
 // c m u n p f a z y. Annotations {…} mean 1, as in UCUM, so {cps} is a
 // dimensionless count rate as written and {counts}/s is per second. Codes are
-// case-sensitive as UCUM's c/s form is: mg/L is valid, MG/L is not.
+// case-sensitive as UCUM's c/s form is: mg/L is valid, MG/L is not (in full
+// UCUM, MG would be the megagauss; the gauss is outside this subset, so
+// MG/L is refused with a hint, while Mg/L, the megagram per litre, is
+// accepted as the valid code it is).
 // Parentheses and numeric factors such as 10*3 are outside this subset and
 // are refused with an error that says so.
 //
