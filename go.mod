@@ -2,6 +2,8 @@ module curvekeeper
 
 go 1.26.8
 
+toolchain go1.27.3
+
 require (
 	github.com/chromedp/chromedp v0.23.0
 	github.com/getkin/kin-openapi v0.153.0
