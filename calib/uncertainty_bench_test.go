@@ -27,10 +27,7 @@ func resultTerms(tb testing.TB, r *Report) []UncertaintyTerm {
 // to a prediction: the calibration term (one Predict) and the GUM budget
 // of eight terms. Compare side by side with BenchmarkPredictOnly.
 func BenchmarkGUMBudget(b *testing.B) {
-	r, err := Fit(photometerPoints(), Options{Model: Linear, Weighting: WeightInvX2})
-	if err != nil {
-		b.Fatal(err)
-	}
+	r := fitOrFatal(b, photometerPoints(), Options{Model: Linear, Weighting: WeightInvX2})
 	b.ReportAllocs()
 	for b.Loop() {
 		if _, err := ComputeBudget(BudgetInput{Terms: resultTerms(b, r)}); err != nil {
@@ -42,10 +39,7 @@ func BenchmarkGUMBudget(b *testing.B) {
 // BenchmarkPredictOnly is the inverse prediction alone, the baseline of
 // BenchmarkGUMBudget.
 func BenchmarkPredictOnly(b *testing.B) {
-	r, err := Fit(photometerPoints(), Options{Model: Linear, Weighting: WeightInvX2})
-	if err != nil {
-		b.Fatal(err)
-	}
+	r := fitOrFatal(b, photometerPoints(), Options{Model: Linear, Weighting: WeightInvX2})
 	b.ReportAllocs()
 	for b.Loop() {
 		if _, err := r.Predict([]float64{0.5, 0.52}, 1, 0); err != nil {
@@ -57,10 +51,7 @@ func BenchmarkPredictOnly(b *testing.B) {
 // BenchmarkMonteCarlo is the same budget propagated with the default
 // 200 000 draws.
 func BenchmarkMonteCarlo(b *testing.B) {
-	r, err := Fit(photometerPoints(), Options{Model: Linear, Weighting: WeightInvX2})
-	if err != nil {
-		b.Fatal(err)
-	}
+	r := fitOrFatal(b, photometerPoints(), Options{Model: Linear, Weighting: WeightInvX2})
 	in := BudgetInput{Terms: resultTerms(b, r)}
 	b.ReportAllocs()
 	for b.Loop() {
