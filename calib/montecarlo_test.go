@@ -68,6 +68,23 @@ func TestMonteCarloAgreesOnWellDeterminedLine(t *testing.T) {
 	if !chk.Agree {
 		t.Errorf("JCGM 101 §8.2 check fails on a well-determined line: %+v", chk)
 	}
+	// With DF = 0 the inputs are plain normals and the nearly linear ratio
+	// is nearly normal: its interval is x̂0 ± 1.96·u (z(0.975) = 1.95996),
+	// narrower than the GUM's t(0.975; 22) = 2.074 interval.
+	normal := in
+	cd := *in.Terms[0].Curve
+	cd.DF = 0
+	normal.Terms = []UncertaintyTerm{in.Terms[0]}
+	normal.Terms[0].Curve = &cd
+	mcn, err := MonteCarlo(normal, MCOptions{Seed: 7})
+	if err != nil {
+		t.Fatal(err)
+	}
+	fz := distuv.UnitNormal.Prob(1.95996) / b.Combined
+	sez := quantileSE(0.025, mcn.Draws, fz)
+	if d := math.Abs(mcn.High - (b.Value + 1.95996*b.Combined)); d > 4*sez {
+		t.Errorf("normal inputs: MC high %v, want x̂0 + 1.96·u = %v ± %.3g", mcn.High, b.Value+1.95996*b.Combined, 4*sez)
+	}
 }
 
 // A weakly determined slope (5 levels × 2, s(y/x) = 0.9, slope 1; invented

@@ -160,6 +160,7 @@ type Budget struct {
 	// ValueRounded is y rounded to the same place (JCGM 100 §7.2.6);
 	// Decimals is the number of digits after the point (0 when U ≥ 10) and
 	// ExpandedText, ValueText their texts with exactly that many digits.
+	// With U = 0 there is no place to round to: y is kept unrounded.
 	Expanded     float64
 	ValueRounded float64
 	Decimals     int
@@ -451,30 +452,35 @@ func ComputeBudget(in BudgetInput) (Budget, error) {
 			groupSum[t.Group] += tr.Contribution
 		}
 	}
-	var uc2, ws float64
-	for i, t := range b.Terms {
-		ug := t.Contribution
-		if t.Group != "" {
-			ug = groupSum[t.Group]
-			if firstOfGroup(b.Terms, i) {
-				uc2 += ug * ug
-				ws += wsTerm(ug, t.DF)
-			}
-		} else {
-			uc2 += ug * ug
-			ws += wsTerm(ug, t.DF)
+	// ug returns the contribution of term i's component: its group's sum,
+	// or its own; first reports whether i is the first term of it.
+	ug := func(i int) (u float64, first bool) {
+		t := b.Terms[i]
+		if t.Group == "" {
+			return t.Contribution, true
 		}
-		b.Terms[i].Share = t.Contribution * ug // divided by u_c² below
+		return groupSum[t.Group], firstOfGroup(b.Terms, i)
+	}
+	var uc2 float64
+	for i := range b.Terms {
+		if u, first := ug(i); first {
+			uc2 += u * u
+		}
 	}
 	b.Combined = math.Sqrt(uc2)
 	if math.IsInf(b.Combined, 0) || math.IsNaN(b.Combined) {
 		return Budget{}, inputErr("terms", "the combined uncertainty is outside the numerically usable range")
 	}
-	for i := range b.Terms {
+	// Shares, and Welch–Satterthwaite in the scale-free form
+	// 1/ν_eff = Σ_g (u_g/u_c)⁴/ν_g, which cannot overflow.
+	var ws float64
+	for i, t := range b.Terms {
+		u, first := ug(i)
 		if uc2 > 0 {
-			b.Terms[i].Share /= uc2
-		} else {
-			b.Terms[i].Share = 0
+			b.Terms[i].Share = t.Contribution * u / uc2
+			if first {
+				ws += wsTerm(u/b.Combined, t.DF)
+			}
 		}
 	}
 	b.RelativeCombined = math.NaN()
@@ -483,10 +489,15 @@ func ComputeBudget(in BudgetInput) (Budget, error) {
 	}
 	b.EffectiveDF = math.Inf(1)
 	if ws > 0 {
-		b.EffectiveDF = uc2 * uc2 / ws
+		b.EffectiveDF = 1 / ws
 	}
 	b.CoverageFactor = coverageFactor(in.Coverage, in.Level, b.EffectiveDF)
 	b.ExpandedExact = b.CoverageFactor * b.Combined
+	if b.ExpandedExact == 0 {
+		// No uncertainty gives no rounding place: y is kept as it is.
+		b.ValueRounded, b.ExpandedText, b.ValueText = y, "0", strconv.FormatFloat(y, 'g', -1, 64)
+		return b, nil
+	}
 	var place int
 	b.Expanded, place = roundSig2(b.ExpandedExact, in.RoundUp)
 	b.ValueRounded = scaleRound(y, place, false)

@@ -273,3 +273,14 @@ func TestTermConstructors(t *testing.T) {
 }
 
 func sq(v float64) float64 { return v * v }
+
+// A budget without uncertainty does not round its value to an integer.
+func TestBudgetZeroUncertainty(t *testing.T) {
+	b, err := ComputeBudget(BudgetInput{Model: ModelSum, Terms: []UncertaintyTerm{{Value: 0.2634, StdUncertainty: 0}}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if b.ValueRounded != 0.2634 || b.ValueText != "0.2634" || b.Expanded != 0 || !math.IsInf(b.EffectiveDF, 1) {
+		t.Errorf("y %v (%q), U %v, ν_eff %v; want 0.2634 kept, U 0, ν_eff ∞", b.ValueRounded, b.ValueText, b.Expanded, b.EffectiveDF)
+	}
+}
