@@ -121,6 +121,20 @@ func ConformityInterpretation(c calib.Conformity) string {
 
 func str(s string) *string { return &s }
 
+// validID reports whether id matches the R4 id type, [A-Za-z0-9\-\.]{1,64}.
+func validID(id string) bool {
+	if len(id) < 1 || len(id) > 64 {
+		return false
+	}
+	for i := 0; i < len(id); i++ {
+		c := id[i]
+		if !(c >= 'a' && c <= 'z' || c >= 'A' && c <= 'Z' || c >= '0' && c <= '9' || c == '-' || c == '.') {
+			return false
+		}
+	}
+	return true
+}
+
 // Observation returns the FHIR R4 Observation of r, category laboratory.
 // Preconditions: a code, a UCUM unit code, a known release state, a finite
 // value (ValueText, when given, a JSON number), uncertainties finite ≥ 0.
@@ -157,6 +171,9 @@ func Observation(r Result) (fhir.Observation, error) {
 		Code: fhir.CodeableConcept{Coding: []fhir.Coding{{Code: str(r.Code)}}},
 	}
 	if r.ID != "" {
+		if !validID(r.ID) {
+			return fhir.Observation{}, fmt.Errorf("fhir: id %q is not an R4 id ([A-Za-z0-9-.]{1,64})", r.ID)
+		}
 		o.Id = str(r.ID)
 	}
 	if r.CodeSystem != "" {

@@ -152,6 +152,7 @@ func TestObservationRejects(t *testing.T) {
 		"text value":      func(r *Result) { r.ValueText = "<0.5" },
 		"negative U":      func(r *Result) { r.Expanded = -1 },
 		"not JSON number": func(r *Result) { r.ValueText = "+4.63" },
+		"id with a slash": func(r *Result) { r.ID = "res/42" },
 	} {
 		r := nitrate(t)
 		edit(&r)
