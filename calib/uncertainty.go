@@ -248,6 +248,25 @@ func DilutionTerms(name string, steps []VolumeStep) []UncertaintyTerm {
 	return out
 }
 
+// StandardTerms returns the terms that the calibration standards add to a
+// result of a product model, when every standard was prepared from one
+// certified stock: the certificate as a factor 1 with relative u =
+// (U/k)/c_stock (normal, in correlation group "stock:"+name, so the same
+// stock entering a budget twice, e.g. also as a spike, counts as one
+// quantity), and each preparation volume as a factor 1 with relative u =
+// a/(√3·V) (rectangular; QUAM App. E.1). The stock and the volumes do not
+// multiply the result; their relative uncertainties do.
+func StandardTerms(name string, stock, expanded, k float64, steps []VolumeStep) []UncertaintyTerm {
+	cert := UncertaintyTerm{Name: name + " certificate", Source: SourceStandard, Kind: DistNormal, Value: 1,
+		StdUncertainty: expanded / k / math.Abs(stock), Group: "stock:" + name}
+	out := []UncertaintyTerm{cert}
+	for _, t := range DilutionTerms(name+" preparation", steps) {
+		t.Source, t.StdUncertainty, t.Value, t.Exponent = SourceStandard, t.StdUncertainty/t.Value, 1, 1
+		out = append(out, t)
+	}
+	return out
+}
+
 // CalibrationTerm returns the concentration of an unknown predicted from the
 // curve with u = s(x̂0) of Predict (Miller & Miller eq. 5.9.1/5.10.5 form,
 // times the dilution factor) and ν = n − p of the fit, with the Prediction

@@ -284,3 +284,18 @@ func TestBudgetZeroUncertainty(t *testing.T) {
 		t.Errorf("y %v (%q), U %v, ν_eff %v; want 0.2634 kept, U 0, ν_eff ∞", b.ValueRounded, b.ValueText, b.Expanded, b.EffectiveDF)
 	}
 }
+
+// Standards from one stock: certificate 1000 ± 2 mg/L (k = 2) diluted
+// 1 mL → 100 mL (tolerances ±0.008 and ±0.1 mL). Hand computation: relative
+// u = √((1/1000)² + (0.008/(√3·1))² + (0.1/(√3·100))²)
+// = √(1e-6 + 2.1333e-5 + 3.333e-7) = √2.2667e-5 = 0.0047610; the value stays 1.
+func TestStandardTerms(t *testing.T) {
+	ts := StandardTerms("Cd stock", 1000, 2, 2, []VolumeStep{{Aliquot: 1, AliquotTol: 0.008, Final: 100, FinalTol: 0.1}})
+	b, err := ComputeBudget(BudgetInput{Terms: ts})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if b.Value != 1 || !closeTo(b.RelativeCombined, 0.0047610, 1e-4, 0) || ts[0].Group != "stock:Cd stock" {
+		t.Errorf("value %v, relative u %v, group %q; want 1, 0.0047610 (hand computation)", b.Value, b.RelativeCombined, ts[0].Group)
+	}
+}
