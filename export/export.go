@@ -7,6 +7,11 @@
 // come first. Each format carries Caution beside the values it exports.
 package export
 
+import (
+	"strconv"
+	"strings"
+)
+
 // Caution travels with every exported result (HL7 v2 NTE, FHIR note, CSV
 // column). Short on purpose: it is repeated for every value.
 const Caution = "Local accreditation, regulation and the laboratory's SOP take precedence; a qualified person reviews results before use."
@@ -19,3 +24,25 @@ const (
 	ReleaseReleasable  = "releasable"  // the curve is approved and no verification failed before the sample
 	ReleaseWithheld    = "withheld"    // rejected, failed, unfittable or superseded curve, or a failed verification
 )
+
+// UncertaintyStatement states an expanded uncertainty in words, e.g.
+// "Expanded uncertainty U = 0.21 mg/L (k = 2.09, coverage probability about
+// 95 %)". expanded is U as it is reported (two significant figures); k ≤ 0
+// or level ≤ 0 leave that part out.
+func UncertaintyStatement(expanded, unit string, k, level float64) string {
+	s := "Expanded uncertainty U = " + expanded
+	if unit != "" {
+		s += " " + unit
+	}
+	var parts []string
+	if k > 0 {
+		parts = append(parts, "k = "+strconv.FormatFloat(k, 'f', 2, 64))
+	}
+	if level > 0 {
+		parts = append(parts, "coverage probability about "+strconv.FormatFloat(100*level, 'f', -1, 64)+" %")
+	}
+	if len(parts) > 0 {
+		s += " (" + strings.Join(parts, ", ") + ")"
+	}
+	return s
+}

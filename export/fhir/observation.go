@@ -261,8 +261,7 @@ func standardUncertainty(r Result) float64 {
 	return 0
 }
 
-// uncertaintyNote states U with its coverage, e.g. "Expanded uncertainty
-// U = 0.89 mg/L (k = 2.16, coverage probability about 95 %)".
+// uncertaintyNote states U with its coverage (export.UncertaintyStatement).
 func uncertaintyNote(r Result) string {
 	if !(r.Expanded > 0) {
 		return ""
@@ -275,26 +274,7 @@ func uncertaintyNote(r Result) string {
 	if unit == "" {
 		unit = r.UnitCode
 	}
-	s := "Expanded uncertainty U = " + u + " " + unit
-	var parts []string
-	if r.CoverageFactor > 0 {
-		parts = append(parts, "k = "+strconv.FormatFloat(r.CoverageFactor, 'f', 2, 64))
-	}
-	if r.Level > 0 {
-		parts = append(parts, "coverage probability about "+strconv.FormatFloat(100*r.Level, 'f', -1, 64)+" %")
-	}
-	for i, p := range parts {
-		if i == 0 {
-			s += " ("
-		} else {
-			s += ", "
-		}
-		s += p
-	}
-	if len(parts) > 0 {
-		s += ")"
-	}
-	return s
+	return export.UncertaintyStatement(u, unit, r.CoverageFactor, r.Level)
 }
 
 // conformityNote is the conformity statement in words.

@@ -93,8 +93,9 @@ type Result struct {
 	// MethodCode, MethodText: OBX-17 (CE), the analytical method.
 	MethodCode, MethodText string
 	Equipment              string // OBX-18 (EI), the instrument's identifier
-	// Uncertainty, when set, is written as an NTE after the OBX, e.g.
-	// "U = 0.89 mg/L (k = 2.16, coverage about 95 %)".
+	// Uncertainty, when set, is written as an NTE after the OBX, e.g. from
+	// export.UncertaintyStatement: "Expanded uncertainty U = 0.89 mg/L
+	// (k = 2.16, coverage probability about 95 %)".
 	Uncertainty string
 	Notes       []string // more NTE comments
 }

@@ -123,7 +123,7 @@ func sample() Message {
 			UnitCode: "mg/L", UnitText: "mg/L", ReferenceRange: "0-11.3", AbnormalFlags: []string{"N"},
 			ReleaseState: export.ReleaseReleasable, ObservedAt: time.Date(2026, 3, 9, 11, 0, 0, 0, zone),
 			MethodCode: "M-17", MethodText: "photometry, curve C-12", Equipment: "PHOTOMETER-2",
-			Uncertainty: "U = 0.21 mg/L (k = 2.09, about 95 %)",
+			Uncertainty: export.UncertaintyStatement("0.21", "mg/L", 2.09, 0.95),
 		}, {
 			Code: "NO2-N", Text: "Nitrite as N", System: "L", Value: -0.004,
 			UnitCode: "mg/L", AbnormalFlags: []string{"L", "A"}, ReleaseState: export.ReleaseProvisional,
@@ -170,7 +170,7 @@ func TestEncodeRoundTrip(t *testing.T) {
 		{"OBX-14", r.field("OBX", 0, 14), "20260309110000+0100"},
 		{"OBX-17.2", comp(r.field("OBX", 0, 17), 2), "photometry, curve C-12"},
 		{"OBX-18", r.field("OBX", 0, 18), "PHOTOMETER-2"},
-		{"NTE-3 (uncertainty)", unescape(r.field("NTE", 0, 3)), "U = 0.21 mg/L (k = 2.09, about 95 %)"},
+		{"NTE-3 (uncertainty)", unescape(r.field("NTE", 0, 3)), "Expanded uncertainty U = 0.21 mg/L (k = 2.09, coverage probability about 95 %)"},
 		{"NTE-3 (caution)", unescape(r.field("NTE", 1, 3)), export.Caution},
 		{"second OBX-5 (negative)", r.field("OBX", 1, 5), "-0.004"},
 		{"second OBX-6.2 (text from code)", comp(r.field("OBX", 1, 6), 2), "mg/L"},
