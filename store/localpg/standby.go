@@ -113,12 +113,22 @@ func (c *Cluster) Promote(ctx context.Context) error {
 	return nil
 }
 
-// CurrentLSN returns the primary's current WAL write position
-// (pg_current_wal_lsn), as PostgreSQL prints it ("0/3000148").
+// CurrentLSN makes the primary flush its WAL and returns the flush
+// position, as PostgreSQL prints it ("0/3000148"): what a standby must
+// replay to see every transaction committed so far. The flush is a
+// transaction that writes one WAL record (a logical decoding message, which
+// changes no table) and commits with synchronous_commit=local, which
+// flushes all WAL up to its commit record, also that of
+// commits made with synchronous_commit=off (as the test clusters' are),
+// without waiting for any synchronous standby.
 func (c *Cluster) CurrentLSN(ctx context.Context) (string, error) {
 	var lsn string
 	err := c.withConn(ctx, func(conn *pgx.Conn) error {
-		return conn.QueryRow(ctx, `SELECT pg_current_wal_lsn()::text`).Scan(&lsn)
+		_, err := conn.Exec(ctx, `BEGIN; SET LOCAL synchronous_commit = local; SELECT pg_logical_emit_message(true, 'localpg', 'flush'); COMMIT`)
+		if err != nil {
+			return fmt.Errorf("localpg: flush WAL: %w", err)
+		}
+		return conn.QueryRow(ctx, `SELECT pg_current_wal_flush_lsn()::text`).Scan(&lsn)
 	})
 	return lsn, err
 }
