@@ -26,7 +26,7 @@ const SyncStandbyName = "ck_sync_standby"
 // clusterSettings keep the replication clusters light: a primary and a
 // standby start in about a second each on a loaded 2-core machine.
 // max_connections must be as large on a standby as on its primary.
-var clusterSettings = []string{"shared_buffers=16MB", "max_connections=60", "wal_level=replica", "max_wal_senders=20"}
+var clusterSettings = []string{"shared_buffers=16MB", "max_connections=60", "wal_level=replica", "max_wal_senders=20", "max_replication_slots=40"}
 
 // Pair is a database on a private primary and a hot standby streaming it.
 type Pair struct {
@@ -43,8 +43,10 @@ type PairOptions struct {
 	// applied their commits. Only one such standby runs at a time; another
 	// test asking for one waits for the first to end.
 	Sync bool
-	// Slot, when not empty, is a physical replication slot the standby
-	// streams through; it is dropped from the primary when the test ends.
+	// Slot names the physical replication slot the standby streams
+	// through (ck_slot_<n> when empty); it is dropped from the primary when
+	// the test ends. The slot keeps the WAL the standby still needs while
+	// other tests' CREATE DATABASE fill and recycle segments fast.
 	Slot string
 }
 
@@ -138,14 +140,17 @@ func NewReplicaPair(t testing.TB, opt PairOptions) *Pair {
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
 	defer cancel()
 	name := fmt.Sprintf("ck_standby_%d", n)
+	if opt.Slot == "" {
+		opt.Slot = fmt.Sprintf("ck_slot_%d", n)
+	}
 	if opt.Sync {
 		name = SyncStandbyName
 	}
-	if opt.Slot != "" {
-		t.Cleanup(func() {
-			_, _ = r.srv.admin.Exec(context.Background(), `SELECT pg_drop_replication_slot($1)`, opt.Slot)
-		})
-	}
+	t.Cleanup(func() {
+		if _, err := r.srv.admin.Exec(context.Background(), `SELECT pg_drop_replication_slot($1)`, opt.Slot); err != nil {
+			t.Errorf("dbtest: drop replication slot %s: %v", opt.Slot, err)
+		}
+	})
 	sb, err := localpg.StartStandby(ctx, r.srv.cluster, localpg.StandbyOptions{
 		Options: localpg.Options{DataDir: filepath.Join(t.TempDir(), "standby"), NoSync: true, Settings: clusterSettings},
 		Name:    name, Slot: opt.Slot})
