@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -151,9 +152,18 @@ func NewReplicaPair(t testing.TB, opt PairOptions) *Pair {
 			t.Errorf("dbtest: drop replication slot %s: %v", opt.Slot, err)
 		}
 	})
-	sb, err := localpg.StartStandby(ctx, r.srv.cluster, localpg.StandbyOptions{
-		Options: localpg.Options{DataDir: filepath.Join(t.TempDir(), "standby"), NoSync: true, Settings: clusterSettings},
-		Name:    name, Slot: opt.Slot})
+	// Other tests' CREATE DATABASE write WAL fast; a segment the copy
+	// needs may be recycled before its slot holds it. Try again then.
+	var sb *localpg.Cluster
+	for attempt := 1; attempt <= 3; attempt++ {
+		sb, err = localpg.StartStandby(ctx, r.srv.cluster, localpg.StandbyOptions{
+			Options: localpg.Options{DataDir: filepath.Join(t.TempDir(), "standby"), NoSync: true, Settings: clusterSettings},
+			Name:    name, Slot: opt.Slot})
+		if err == nil || !strings.Contains(err.Error(), "has already been removed") {
+			break
+		}
+		_, _ = r.srv.admin.Exec(ctx, `SELECT pg_drop_replication_slot(slot_name) FROM pg_replication_slots WHERE slot_name = $1`, opt.Slot)
+	}
 	if err != nil {
 		t.Fatalf("dbtest: start standby: %v", err)
 	}
