@@ -36,7 +36,7 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 	if q.Limit != nil {
 		f.Limit = *q.Limit
 	}
-	page, err := s.db.ListCurves(ctx, f)
+	page, err := s.reads(ctx).ListCurves(ctx, f) // history tolerates the replicas' lag
 	if err != nil {
 		var se *store.Error
 		if errors.As(err, &se) && se.Kind == store.KindInvalid && strings.Contains(strings.ToLower(se.Field+se.Message), "cursor") {

@@ -100,7 +100,8 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 	}
 	e.HTTPErrorHandler = s.errorHandler
 	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware, s.framingMiddleware,
-		s.timeoutMiddleware, s.bodyLimitMiddleware, s.authMiddleware, s.rateLimitMiddleware, validator)
+		s.timeoutMiddleware, s.bodyLimitMiddleware, s.replicationMiddleware, s.authMiddleware, s.rateLimitMiddleware, validator)
+	s.metrics.registry.MustRegister(newReplicationCollector(db))
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
 	s.registerUI(e)
 	return s, nil
