@@ -48,7 +48,7 @@ type TopDown struct {
 // Preconditions: at least two finite QC recoveries, at least one CRM result
 // with a non-zero finite reference value and a finite u(Cref) ≥ 0.
 func ComputeTopDown(in TopDownInput) (TopDown, error) {
-	_, sd, err := meanSD("qc_recoveries", in.QCRecoveries)
+	_, sd, err := checkedMeanSD("qc_recoveries", in.QCRecoveries)
 	if err != nil {
 		return TopDown{}, err
 	}

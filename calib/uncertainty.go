@@ -185,7 +185,7 @@ func RectangularTerm(name string, src Source, value, a float64) UncertaintyTerm 
 // TypeATerm returns the mean x̄ of readings with u = s/√n and ν = n − 1
 // (JCGM 100 §4.2.3). At least two readings, all finite.
 func TypeATerm(name string, src Source, readings []float64) (UncertaintyTerm, error) {
-	mean, sd, err := meanSD("readings", readings)
+	mean, sd, err := checkedMeanSD("readings", readings)
 	if err != nil {
 		return UncertaintyTerm{}, err
 	}
@@ -201,7 +201,7 @@ func TypeATerm(name string, src Source, readings []float64) (UncertaintyTerm, er
 // unknown's instrument readings through s(y/x)²/(m·w0); add this factor for
 // what the curve does not see, such as replicate preparations.
 func RepeatabilityFactor(name string, readings []float64) (UncertaintyTerm, error) {
-	mean, sd, err := meanSD("readings", readings)
+	mean, sd, err := checkedMeanSD("readings", readings)
 	if err != nil {
 		return UncertaintyTerm{}, err
 	}
@@ -303,8 +303,9 @@ func (r *Report) CalibrationTerm(name string, responses []float64, dilution floa
 	return t, pr, nil
 }
 
-// meanSD returns the mean and the sample standard deviation (n − 1) of v.
-func meanSD(field string, v []float64) (mean, sd float64, err error) {
+// checkedMeanSD is meanSD for caller input: it refuses fewer than two values
+// and any value that is not finite, naming field.
+func checkedMeanSD(field string, v []float64) (mean, sd float64, err error) {
 	if len(v) < 2 {
 		return 0, 0, inputErr(field, "need at least two values, got %d", len(v))
 	}
@@ -312,14 +313,9 @@ func meanSD(field string, v []float64) (mean, sd float64, err error) {
 		if math.IsNaN(x) || math.IsInf(x, 0) {
 			return 0, 0, inputErr(field+"["+strconv.Itoa(i)+"]", "not a finite number")
 		}
-		mean += x
 	}
-	mean /= float64(len(v))
-	var ss float64
-	for _, x := range v {
-		ss += (x - mean) * (x - mean)
-	}
-	return mean, math.Sqrt(ss / float64(len(v)-1)), nil
+	mean, sd = meanSD(v)
+	return mean, sd, nil
 }
 
 // resolved returns the input with its defaults filled in, or an error that
