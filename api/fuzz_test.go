@@ -24,6 +24,7 @@ import (
 
 	"curvekeeper/api"
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
@@ -54,10 +55,10 @@ func newFuzzServer(f *testing.F) *fuzzServer {
 		f.Fatal(err)
 	}
 	fs := &fuzzServer{h: srv.Handler()}
-	if _, fs.writer, err = db.CreateToken(ctx, "fuzz-writer", []string{store.ScopeRunsWrite}, "fuzz-setup"); err != nil {
+	if _, fs.writer, err = db.CreateToken(ctx, "fuzz-writer", []string{lab.ScopeRunsWrite}, "fuzz-setup"); err != nil {
 		f.Fatal(err)
 	}
-	if _, fs.reader, err = db.CreateToken(ctx, "fuzz-reader", []string{store.ScopeResultsRead}, "fuzz-setup"); err != nil {
+	if _, fs.reader, err = db.CreateToken(ctx, "fuzz-reader", []string{lab.ScopeResultsRead}, "fuzz-setup"); err != nil {
 		f.Fatal(err)
 	}
 	rec := fs.post(fuzzRunSeed, "/v1/runs", fs.writer)

@@ -8,6 +8,7 @@ import (
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -30,7 +31,7 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 	seen := map[string]bool{}
 	for i, a := range b.Analytes {
 		if seen[string(a.Name)] {
-			return nil, store.FieldError(pointer("analytes", i, "name"), "analyte %q is listed twice", a.Name)
+			return nil, lab.FieldError(pointer("analytes", i, "name"), "analyte %q is listed twice", a.Name)
 		}
 		seen[string(a.Name)] = true
 		in.Analytes = append(in.Analytes, store.Analyte{Name: string(a.Name), Unit: string(a.Unit)})
@@ -210,7 +211,7 @@ func (s *Server) DeleteToken(ctx context.Context, req oapi.DeleteTokenRequestObj
 
 // mustPrincipal returns the authenticated caller; authMiddleware guarantees
 // one on every /v1 route.
-func mustPrincipal(ctx context.Context) Principal {
+func mustPrincipal(ctx context.Context) lab.Principal {
 	p, ok := principalFrom(ctx)
 	if !ok {
 		panic(newProblem(http.StatusUnauthorized, "no principal on an authenticated route"))

@@ -6,12 +6,11 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"net/http"
-	"strings"
 
 	"curvekeeper/api/curveplot"
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -38,10 +37,6 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 	}
 	page, err := s.db.ListCurves(ctx, f)
 	if err != nil {
-		var se *store.Error
-		if errors.As(err, &se) && se.Kind == store.KindInvalid && strings.Contains(strings.ToLower(se.Field+se.Message), "cursor") {
-			return nil, newProblem(http.StatusBadRequest, se.Message, ProblemField{Pointer: "query:cursor", Detail: se.Message})
-		}
 		return nil, err
 	}
 	out := oapi.ListCurves200JSONResponse{Curves: make([]oapi.CurveSummary, 0, len(page.Curves)), Cautions: calib.Cautions()}
@@ -117,7 +112,7 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 	}
 	r := c.Report
 	if len(r.Coefficients) == 0 {
-		return oapi.PredictionResponse{}, store.Errorf(store.KindConflict, "curve %s could not be fitted (see its checks), so it cannot quantify samples", id)
+		return oapi.PredictionResponse{}, lab.Errorf(lab.KindConflict, "curve %s could not be fitted (see its checks), so it cannot quantify samples", id)
 	}
 	conf := r.Confidence
 	if confidence != nil {
@@ -137,7 +132,7 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		if err != nil {
 			var ie *calib.InputError
 			if errors.As(err, &ie) {
-				return oapi.PredictionResponse{}, store.FieldError(pointer("samples", i, ie.Field), "%s", ie.Reason)
+				return oapi.PredictionResponse{}, lab.FieldError(pointer("samples", i, ie.Field), "%s", ie.Reason)
 			}
 			return oapi.PredictionResponse{}, fmt.Errorf("api: predict sample %d: %w", i, err)
 		}
@@ -177,10 +172,6 @@ func (s *Server) ReviewCurve(ctx context.Context, req oapi.ReviewCurveRequestObj
 	id := req.ID.String()
 	reason := deref(req.Body.Reason)
 	if _, err := s.db.ReviewCurve(ctx, id, string(req.Body.Decision), reason, p.Actor()); err != nil {
-		var se *store.Error
-		if errors.As(err, &se) && se.Kind == store.KindInvalid && se.Field == "" {
-			return nil, store.FieldError("/reason", "%s", se.Message)
-		}
 		return nil, err
 	}
 	s.curves.drop(id)

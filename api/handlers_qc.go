@@ -4,7 +4,6 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"net/http"
 	"time"
 
 	"curvekeeper/api/oapi"
@@ -22,20 +21,10 @@ func (s *Server) CreateVerification(ctx context.Context, req oapi.CreateVerifica
 		Responses: b.Responses, At: b.At, Actor: p.Actor(),
 	})
 	if err != nil {
-		return nil, conflictOnPath(err)
+		return nil, err
 	}
 	return oapi.CreateVerification201JSONResponse{Verification: verificationOut(v), ResultsChanged: v.ResultsChanged,
 		Cautions: calib.Cautions()}, nil
-}
-
-// conflictOnPath names the curve in the path as the field of a state
-// conflict: the rule is about the curve, not about the body.
-func conflictOnPath(err error) error {
-	var se *store.Error
-	if errors.As(err, &se) && se.Kind == store.KindConflict {
-		return newProblem(http.StatusConflict, se.Message, ProblemField{Pointer: "path:id", Detail: se.Message})
-	}
-	return err
 }
 
 // ListVerifications lists the verification standards of a curve.
@@ -100,7 +89,7 @@ func (s *Server) CreateExclusion(ctx context.Context, req oapi.CreateExclusionRe
 	revID, err := s.db.CreateRevision(ctx, store.RevisionInput{OriginalID: c.ID, Report: rep, Excluded: excluded,
 		Reason: string(req.Body.Reason), RangeReason: rangeReason, Actor: p.Actor()})
 	if err != nil {
-		return nil, conflictOnPath(err)
+		return nil, err
 	}
 	rc, err := s.freshCurve(ctx, revID)
 	if err != nil {

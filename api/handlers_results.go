@@ -7,6 +7,7 @@ import (
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -46,8 +47,8 @@ func (s *Server) GetRunResults(ctx context.Context, req oapi.GetRunResultsReques
 func (s *Server) GetSampleResults(ctx context.Context, req oapi.GetSampleResultsRequestObject) (oapi.GetSampleResultsResponseObject, error) {
 	results, err := s.db.SampleResults(ctx, req.SampleID)
 	if err != nil {
-		var se *store.Error
-		if errors.As(err, &se) && se.Kind == store.KindNotFound {
+		var se *lab.Error
+		if errors.As(err, &se) && se.Kind == lab.KindNotFound {
 			return nil, newProblem(http.StatusNotFound, se.Message, ProblemField{Pointer: "path:sample_id", Detail: se.Message})
 		}
 		return nil, err
@@ -64,10 +65,6 @@ func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEvents
 	}
 	page, err := s.db.ResultFeed(ctx, deref(req.Params.Since), limit)
 	if err != nil {
-		var se *store.Error
-		if errors.As(err, &se) && se.Kind == store.KindInvalid && se.Field == "/since" {
-			return nil, newProblem(http.StatusBadRequest, se.Message, ProblemField{Pointer: "query:since", Detail: se.Message})
-		}
 		return nil, err
 	}
 	out := oapi.ListResultEvents200JSONResponse{Events: make([]oapi.ResultEvent, 0, len(page.Events)),

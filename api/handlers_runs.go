@@ -14,6 +14,7 @@ import (
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -37,10 +38,10 @@ func (s *Server) CreateRun(ctx context.Context, req oapi.CreateRunRequestObject)
 		Method: string(body.Method), Instrument: string(body.Instrument), Analytes: runAnalytes(body),
 		Before: body.AcquiredAt, Limit: driftHistory})
 	if err != nil {
-		if store.KindOf(err) == store.KindNotFound {
-			return nil, store.FieldError("/method", "no method is called %q; an administrator defines methods with POST /v1/methods", body.Method)
+		if lab.KindOf(err) == lab.KindNotFound {
+			return nil, lab.FieldError("/method", "no method is called %q; an administrator defines methods with POST /v1/methods", body.Method)
 		}
-		return nil, idempotencyError(err)
+		return nil, err
 	}
 	if reads.Replay != nil {
 		return runCreatedOut(reads.Replay), nil
@@ -55,7 +56,7 @@ func (s *Server) CreateRun(ctx context.Context, req oapi.CreateRunRequestObject)
 	in.TokenID, in.Actor = p.TokenID, p.Actor()
 	created, err := s.db.CreateRun(ctx, in, curves)
 	if err != nil {
-		return nil, idempotencyError(err)
+		return nil, err
 	}
 	return runCreatedOut(created), nil
 }
@@ -67,15 +68,6 @@ func runAnalytes(body *oapi.RunRequest) []string {
 		out = append(out, string(st.Analyte))
 	}
 	return out
-}
-
-// idempotencyError names the header when a key was reused with another body.
-func idempotencyError(err error) error {
-	var se *store.Error
-	if errors.As(err, &se) && se.Kind == store.KindInvalid && se.Field == "/headers/Idempotency-Key" {
-		return &store.Error{Kind: store.KindInvalid, Field: "header:Idempotency-Key", Message: se.Message, Err: se.Err}
-	}
-	return err
 }
 
 func runCreatedOut(c *store.RunCreated) oapi.CreateRun201JSONResponse {
@@ -188,16 +180,16 @@ func (s *Server) prepareRun(m *store.Method, body *oapi.RunRequest) (store.RunIn
 	for i, st := range body.Standards {
 		a := string(st.Analyte)
 		if _, ok := m.Analyte(a); !ok {
-			return in, nil, store.FieldError(pointer("standards", i, "analyte"), "method %s does not list the analyte %q", m.Name, a)
+			return in, nil, lab.FieldError(pointer("standards", i, "analyte"), "method %s does not list the analyte %q", m.Name, a)
 		}
 		k := levelKey{a, string(st.Level)}
 		if seen[k] {
-			return in, nil, store.FieldError(pointer("standards", i, "level"), "level %q of %s appears twice; send replicates as several responses of one standard", st.Level, a)
+			return in, nil, lab.FieldError(pointer("standards", i, "level"), "level %q of %s appears twice; send replicates as several responses of one standard", st.Level, a)
 		}
 		seen[k] = true
 		ck := concKey{a, st.Concentration}
 		if other, dup := concAt[ck]; dup {
-			return in, nil, store.FieldError(pointer("standards", i, "concentration"), "levels %q and %q of %s share the concentration %v; send replicates as several responses of one standard", other, st.Level, a, st.Concentration)
+			return in, nil, lab.FieldError(pointer("standards", i, "concentration"), "levels %q and %q of %s share the concentration %v; send replicates as several responses of one standard", other, st.Level, a, st.Concentration)
 		}
 		concAt[ck] = string(st.Level)
 		if _, ok := points[a]; !ok {
@@ -216,14 +208,14 @@ func (s *Server) prepareRun(m *store.Method, body *oapi.RunRequest) (store.RunIn
 			a := string(sm.Analyte)
 			sk := sampleKey{a, string(sm.ID)}
 			if seenSample[sk] {
-				return in, nil, store.FieldError(pointer("samples", i, "id"), "sample %q of %s appears twice; send replicates as several responses of one sample", sm.ID, a)
+				return in, nil, lab.FieldError(pointer("samples", i, "id"), "sample %q of %s appears twice; send replicates as several responses of one sample", sm.ID, a)
 			}
 			seenSample[sk] = true
 			if _, ok := m.Analyte(a); !ok {
-				return in, nil, store.FieldError(pointer("samples", i, "analyte"), "method %s does not list the analyte %q", m.Name, a)
+				return in, nil, lab.FieldError(pointer("samples", i, "analyte"), "method %s does not list the analyte %q", m.Name, a)
 			}
 			if _, ok := points[a]; !ok {
-				return in, nil, store.FieldError(pointer("samples", i, "analyte"), "the run has no standards for %q to quantify this sample against", a)
+				return in, nil, lab.FieldError(pointer("samples", i, "analyte"), "the run has no standards for %q to quantify this sample against", a)
 			}
 			d := 1.0
 			if sm.Dilution != nil {

@@ -20,6 +20,7 @@ import (
 
 	"curvekeeper/api/curveplot"
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -113,7 +114,7 @@ func (s *Server) uiFail(c echo.Context, err error) error {
 		status = http.StatusInternalServerError
 	}
 	msg := "Something went wrong on our side; the error is logged with request id " + requestID(c) + "."
-	var se *store.Error
+	var se *lab.Error
 	switch {
 	case status == http.StatusServiceUnavailable:
 		msg = "The database cannot be reached just now. Try again in a moment."
@@ -141,8 +142,8 @@ func (s *Server) uiStyle(c echo.Context) error {
 
 // registerUI adds the QA pages under /ui/.
 func (s *Server) registerUI(e *echo.Echo) {
-	read := s.requireSession(ScopeResultsRead, ScopeCurvesReview, ScopeAdmin)
-	review := s.requireSession(ScopeCurvesReview, ScopeAdmin)
+	read := s.requireSession(lab.ScopeResultsRead, lab.ScopeCurvesReview, lab.ScopeAdmin)
+	review := s.requireSession(lab.ScopeCurvesReview, lab.ScopeAdmin)
 	g := e.Group("/ui", s.uiSessionMiddleware)
 	g.GET("", func(c echo.Context) error { return c.Redirect(http.StatusSeeOther, "/ui/curves") })
 	g.GET("/", func(c echo.Context) error { return c.Redirect(http.StatusSeeOther, "/ui/curves") })
@@ -213,8 +214,8 @@ func (s *Server) uiCurveList(c echo.Context) error {
 	if v.Problem == "" {
 		page, err := s.db.ListCurves(c.Request().Context(), f)
 		switch {
-		case store.KindOf(err) == store.KindInvalid:
-			var se *store.Error
+		case lab.KindOf(err) == lab.KindInvalid:
+			var se *lab.Error
 			errors.As(err, &se)
 			v.Problem = se.Message
 		case err != nil:
@@ -381,8 +382,8 @@ func (s *Server) uiReview(c echo.Context) error {
 		if err == nil {
 			return c.Redirect(http.StatusSeeOther, "/ui/curves/"+url.PathEscape(id)+"?reviewed="+decision)
 		}
-		var se *store.Error
-		if !errors.As(err, &se) || se.Kind == store.KindInternal || se.Kind == store.KindUnavailable || se.Kind == store.KindNotFound {
+		var se *lab.Error
+		if !errors.As(err, &se) || se.Kind == lab.KindInternal || se.Kind == lab.KindUnavailable || se.Kind == lab.KindNotFound {
 			return s.uiFail(c, err)
 		}
 		problem = se.Message

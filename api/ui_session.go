@@ -15,7 +15,7 @@ import (
 
 	"github.com/labstack/echo/v4"
 
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // The QA pages' cookies. The session cookie holds the session secret (the
@@ -31,7 +31,7 @@ const (
 
 // uiSession is the signed-in user of a QA page request.
 type uiSession struct {
-	Principal Principal
+	Principal lab.Principal
 	secret    string // the cookie's session secret
 	CSRF      string // the synchronizer token of this session's forms
 }
@@ -43,11 +43,11 @@ func (u *uiSession) Has(scopes ...string) bool {
 
 // CanRead: the scopes of GET /v1/curves and /v1/trends.
 func (u *uiSession) CanRead() bool {
-	return u.Has(ScopeResultsRead, ScopeCurvesReview, ScopeAdmin)
+	return u.Has(lab.ScopeResultsRead, lab.ScopeCurvesReview, lab.ScopeAdmin)
 }
 
 // CanReview: the scopes of POST /v1/curves/{id}/review and the audit trail.
-func (u *uiSession) CanReview() bool { return u.Has(ScopeCurvesReview, ScopeAdmin) }
+func (u *uiSession) CanReview() bool { return u.Has(lab.ScopeCurvesReview, lab.ScopeAdmin) }
 
 // csrfFor derives the synchronizer token of a session from its secret:
 // HMAC-SHA256(secret, label). It is bound to the session (another session,
@@ -105,11 +105,11 @@ func (s *Server) uiSessionMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 			switch {
 			case err == nil:
 				u := &uiSession{secret: ck.Value, CSRF: csrfFor(ck.Value),
-					Principal: Principal{TokenID: sess.Token.ID, Name: sess.Token.Name, Scopes: sess.Token.Scopes}}
+					Principal: sess.Token}
 				c.Set("ui_session", u)
 				req := c.Request()
 				c.SetRequest(req.WithContext(context.WithValue(req.Context(), principalKey{}, u.Principal)))
-			case store.KindOf(err) == store.KindNotFound:
+			case lab.KindOf(err) == lab.KindNotFound:
 				setCookie(c, uiSessionCookie, "", -1) // stale: forget it
 			default:
 				return err
@@ -190,7 +190,7 @@ func (s *Server) signIn(c echo.Context) error {
 	}
 	secret, _, err := s.db.CreateSession(c.Request().Context(), token, uiSessionTTL)
 	if err != nil {
-		if store.KindOf(err) == store.KindNotFound {
+		if lab.KindOf(err) == lab.KindNotFound {
 			return s.renderSignIn(c, http.StatusUnauthorized, "That token is unknown or revoked.")
 		}
 		return err

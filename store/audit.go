@@ -8,6 +8,8 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // Audit actions written by the store.
@@ -75,7 +77,7 @@ func (db *DB) ListAudit(ctx context.Context, curveID string) ([]AuditEvent, erro
 	var runID string
 	err = db.Pool.QueryRow(ctx, `SELECT run_id FROM curves WHERE id = $1`, id).Scan(&runID)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "curve %s not found", id)
+		return nil, lab.Errorf(lab.KindNotFound, "curve %s not found", id)
 	}
 	if err != nil {
 		return nil, classify("select curve "+id, err)

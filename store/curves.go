@@ -18,6 +18,7 @@ import (
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
 
 // Verdicts and review statuses of a curve.
@@ -124,7 +125,7 @@ SELECT c.`+strings.ReplaceAll(curveColumns, ", ", ", c.")+`, c.report, r.decisio
 FROM curves c LEFT JOIN reviews r ON r.curve_id = c.id
 WHERE c.id = $1`, id), &report, &decision, &reason, &actor, &at)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "curve %s not found", id)
+		return nil, lab.Errorf(lab.KindNotFound, "curve %s not found", id)
 	}
 	if err != nil {
 		return nil, classify("select curve "+id, err)
@@ -177,10 +178,10 @@ func encodeCursor(acquiredAt time.Time, id string, f CurveFilter) (string, error
 func decodeCursor(s string, f CurveFilter) (time.Time, string, error) {
 	b, err := base64.RawURLEncoding.DecodeString(s)
 	if err != nil || len(b) != 32 {
-		return time.Time{}, "", FieldError("/cursor", "cursor is not one this service issued")
+		return time.Time{}, "", lab.ParamError(lab.KindInvalid, lab.InQuery, "cursor", "cursor is not one this service issued")
 	}
 	if !bytes.Equal(b[24:], filterDigest(f)) {
-		return time.Time{}, "", FieldError("/cursor", "cursor was issued for other filters; send the same filters as the first page, or start again without a cursor")
+		return time.Time{}, "", lab.ParamError(lab.KindInvalid, lab.InQuery, "cursor", "cursor was issued for other filters; send the same filters as the first page, or start again without a cursor")
 	}
 	u, _ := uuid.FromBytes(b[8:24])
 	return time.UnixMicro(int64(binary.BigEndian.Uint64(b[:8]))).UTC(), u.String(), nil
@@ -287,13 +288,13 @@ func curveQuery(f CurveFilter) (sql string, args []any, limit int, err error) {
 	case limit == 0:
 		limit = DefaultCurveLimit
 	case limit < 0 || limit > MaxCurveLimit:
-		return "", nil, 0, FieldError("/limit", "limit must be between 1 and %d", MaxCurveLimit)
+		return "", nil, 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "limit", "limit must be between 1 and %d", MaxCurveLimit)
 	}
 	if f.Status != "" && !slices.Contains([]string{StatusPendingReview, StatusApproved, StatusRejected}, f.Status) {
-		return "", nil, 0, FieldError("/status", "unknown status %q", f.Status)
+		return "", nil, 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "status", "unknown status %q", f.Status)
 	}
 	if f.Verdict != "" && f.Verdict != VerdictPass && f.Verdict != VerdictFail {
-		return "", nil, 0, FieldError("/verdict", "unknown verdict %q", f.Verdict)
+		return "", nil, 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "verdict", "unknown verdict %q", f.Verdict)
 	}
 	var where []string
 	add := func(cond string, v any) {
@@ -351,7 +352,7 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 	}
 	status := map[string]string{DecisionApprove: StatusApproved, DecisionReject: StatusRejected}[decision]
 	if status == "" {
-		return nil, FieldError("/decision", "decision must be %q or %q", DecisionApprove, DecisionReject)
+		return nil, lab.FieldError("/decision", "decision must be %q or %q", DecisionApprove, DecisionReject)
 	}
 	reason = strings.TrimSpace(reason)
 	var rv *Review
@@ -359,23 +360,23 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 		var current, verdict string
 		err := tx.QueryRow(ctx, `SELECT status, verdict FROM curves WHERE id = $1 FOR UPDATE`, id).Scan(&current, &verdict)
 		if errors.Is(err, pgx.ErrNoRows) {
-			return Errorf(KindNotFound, "curve %s not found", id)
+			return lab.Errorf(lab.KindNotFound, "curve %s not found", id)
 		}
 		if err != nil {
 			return classify("select curve "+id, err)
 		}
 		if current != StatusPendingReview {
-			return Errorf(KindConflict, "curve %s was already reviewed: it is %s", id, current)
+			return lab.Errorf(lab.KindConflict, "curve %s was already reviewed: it is %s", id, current)
 		}
 		if decision == DecisionApprove && verdict == VerdictFail && reason == "" {
-			return FieldError("/reason", "a curve that failed its acceptance checks can be approved only with a reason")
+			return lab.FieldError("/reason", "a curve that failed its acceptance checks can be approved only with a reason")
 		}
 		rv = &Review{CurveID: id, Decision: decision, Reason: reason, Actor: actor}
 		err = tx.QueryRow(ctx, `INSERT INTO reviews (curve_id, decision, reason, actor) VALUES ($1, $2, $3, $4) RETURNING at`,
 			id, decision, reason, actor).Scan(&rv.At)
 		if err != nil {
 			if pgCode(err) == codeUniqueViolation {
-				return &Error{Kind: KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
+				return &lab.Error{Kind: lab.KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
 			}
 			return classify("insert review", err)
 		}
@@ -383,7 +384,7 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 			id, status, rv.At, actor)
 		if err != nil {
 			if pgCode(err) == codeImmutable {
-				return &Error{Kind: KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
+				return &lab.Error{Kind: lab.KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
 			}
 			return classify("update curve status", err)
 		}

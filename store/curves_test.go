@@ -9,6 +9,7 @@ import (
 	"testing"
 	"time"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -45,7 +46,7 @@ func TestGetCurveReturnsTheReportAsFitted(t *testing.T) {
 		t.Errorf("prediction from the stored report = %+v (%v), from the original %+v (%v)", p2, err2, p1, err1)
 	}
 	_, err = db.GetCurve(ctx, created.ID) // a run id is not a curve id
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 }
 
 // storeCurves stores n runs of two curves each: instruments ic-02 and ic-03
@@ -185,8 +186,8 @@ func TestListCurvesKeysetPagination(t *testing.T) {
 	} {
 		t.Run(bad.name, func(t *testing.T) {
 			_, err := db.ListCurves(ctx, bad.filter)
-			wantKind(t, err, store.KindInvalid)
-			if got := err.(*store.Error).Field; got != bad.field {
+			wantKind(t, err, lab.KindInvalid)
+			if got := err.(*lab.Error).Field; got != bad.field {
 				t.Errorf("field = %q, want %q", got, bad.field)
 			}
 		})
@@ -226,17 +227,17 @@ func TestReviewCurve(t *testing.T) {
 		t.Errorf("approved curve = %+v, review %+v, %v", got.CurveSummary, got.Review, err)
 	}
 	_, err = db.ReviewCurve(ctx, passed.ID, store.DecisionReject, "second thoughts", "qa-other")
-	wantKind(t, err, store.KindConflict)
+	wantKind(t, err, lab.KindConflict)
 
 	_, err = db.ReviewCurve(ctx, failed.ID, store.DecisionApprove, "  ", "qa-test")
-	wantKind(t, err, store.KindInvalid)
-	if f := err.(*store.Error).Field; f != "/reason" {
+	wantKind(t, err, lab.KindInvalid)
+	if f := err.(*lab.Error).Field; f != "/reason" {
 		t.Errorf("field = %q, want /reason", f)
 	}
 	_, err = db.ReviewCurve(ctx, failed.ID, "maybe", "", "qa-test")
-	wantKind(t, err, store.KindInvalid)
+	wantKind(t, err, lab.KindInvalid)
 	_, err = db.ReviewCurve(ctx, "0190a1b2-0000-7000-8000-000000000000", store.DecisionApprove, "", "qa-test")
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 
 	if _, err := db.ReviewCurve(ctx, failed.ID, store.DecisionApprove, "two levels suffice for this screening SOP", "qa-test"); err != nil {
 		t.Errorf("approving a failed curve with a reason: %v", err)
@@ -259,7 +260,7 @@ func TestReviewCurve(t *testing.T) {
 		t.Errorf("review audit = %+v %s", last, last.Detail)
 	}
 	_, err = db.ListAudit(ctx, created.ID)
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 }
 
 func TestConcurrentReviewsOneWins(t *testing.T) {
@@ -292,7 +293,7 @@ func TestConcurrentReviewsOneWins(t *testing.T) {
 			wins++
 			continue
 		}
-		wantKind(t, err, store.KindConflict)
+		wantKind(t, err, lab.KindConflict)
 	}
 	if wins != 1 || count(t, db, "reviews") != 1 {
 		t.Errorf("%d reviews succeeded (%d stored), want exactly 1", wins, count(t, db, "reviews"))

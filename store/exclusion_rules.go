@@ -6,6 +6,7 @@ import (
 	"sort"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
 
 // ExcludedPoint names readings of a curve's standards: one replicate
@@ -75,9 +76,9 @@ func PlanExclusion(points []calib.PointResult, req []ExcludedPoint, rangeReason 
 			before++
 		}
 	}
-	var issues []FieldIssue
+	var issues []lab.FieldIssue
 	add := func(field, rule, format string, args ...any) {
-		issues = append(issues, FieldIssue{Field: field, Message: "rule " + rule + ": " + fmt.Sprintf(format, args...)})
+		issues = append(issues, lab.FieldIssue{Field: field, Message: "rule " + rule + ": " + fmt.Sprintf(format, args...)})
 	}
 	for i, e := range req {
 		l, ok := levels[e.Level]
@@ -153,10 +154,10 @@ func PlanExclusion(points []calib.PointResult, req []ExcludedPoint, rangeReason 
 }
 
 // ruleError is one KindInvalid error listing every breach.
-func ruleError(issues []FieldIssue) error {
+func ruleError(issues []lab.FieldIssue) error {
 	msg := issues[0].Message
 	if len(issues) > 1 {
 		msg = fmt.Sprintf("%s (and %d more)", msg, len(issues)-1)
 	}
-	return &Error{Kind: KindInvalid, Field: issues[0].Field, Message: msg, Fields: issues}
+	return &lab.Error{Kind: lab.KindInvalid, Field: issues[0].Field, Message: msg, Fields: issues}
 }

@@ -7,6 +7,7 @@ import (
 	"testing"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -65,8 +66,8 @@ func TestPlanExclusion(t *testing.T) {
 				}
 				return
 			}
-			var se *store.Error
-			if !errors.As(err, &se) || se.Kind != store.KindInvalid {
+			var se *lab.Error
+			if !errors.As(err, &se) || se.Kind != lab.KindInvalid {
 				t.Fatalf("error = %v, want KindInvalid", err)
 			}
 			if len(se.Fields) != len(tc.wantRules) {
@@ -87,7 +88,7 @@ func TestPlanExclusionKeepsEarlierExclusions(t *testing.T) {
 	pts := points(8, 2)
 	pts[0].Excluded, pts[2].Excluded, pts[4].Excluded = true, true, true // L1, L2, L3 replicate 1
 	_, _, err := store.PlanExclusion(pts, []store.ExcludedPoint{{Level: "L4", Replicate: 1}, {Level: "L5", Replicate: 1}}, "", 6)
-	var se *store.Error
+	var se *lab.Error
 	if !errors.As(err, &se) || !strings.Contains(se.Message, store.RuleMaxExcludedFraction) {
 		t.Fatalf("5 of 16 with earlier exclusions: error = %v, want rule %s", err, store.RuleMaxExcludedFraction)
 	}

@@ -10,6 +10,7 @@ import (
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
 
 // ActionCurveExclude is the audit action, on the original curve, of an
@@ -55,7 +56,7 @@ func (db *DB) CreateRevision(ctx context.Context, in RevisionInput) (string, err
 	}
 	in.Reason = strings.TrimSpace(in.Reason)
 	if in.Reason == "" {
-		return "", FieldError("/reason", "an exclusion needs a reason")
+		return "", lab.FieldError("/reason", "an exclusion needs a reason")
 	}
 	if in.Report == nil {
 		return "", errors.New("store: revision without a report")
@@ -75,7 +76,7 @@ func (db *DB) CreateRevision(ctx context.Context, in RevisionInput) (string, err
 SELECT run_id, method, method_revision, instrument, analyte, unit, acquired_at FROM curves WHERE id = $1 FOR UPDATE`,
 			origID).Scan(&runID, &method, &revision, &instrument, &analyte, &unit, &acquired)
 		if errors.Is(err, pgx.ErrNoRows) {
-			return Errorf(KindNotFound, "curve %s not found", origID)
+			return lab.Errorf(lab.KindNotFound, "curve %s not found", origID)
 		}
 		if err != nil {
 			return classify("lock curve "+origID, err)
@@ -83,7 +84,7 @@ SELECT run_id, method, method_revision, instrument, analyte, unit, acquired_at F
 		var existing string
 		err = tx.QueryRow(ctx, `SELECT curve_id::text FROM exclusions WHERE revision_of = $1`, origID).Scan(&existing)
 		if err == nil {
-			return Errorf(KindConflict, "rule %s: curve %s was already revised as %s; exclude from the revision", RuleCurveIsCurrent, origID, existing)
+			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s was already revised as %s; exclude from the revision", RuleCurveIsCurrent, origID, existing)
 		}
 		if !errors.Is(err, pgx.ErrNoRows) {
 			return classify("select revision of "+origID, err)
@@ -110,7 +111,7 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 		if _, err := tx.Exec(ctx, `INSERT INTO exclusions (curve_id, revision_of, points, reason, range_reason, actor) VALUES ($1, $2, $3, $4, $5, $6)`,
 			pc.id, origID, points, in.Reason, rangeReason, in.Actor); err != nil {
 			if pgCode(err) == codeUniqueViolation {
-				return &Error{Kind: KindConflict, Message: "rule " + RuleCurveIsCurrent + ": curve " + origID + " was revised concurrently", Err: err}
+				return &lab.Error{Kind: lab.KindConflict, In: lab.InPath, Field: "/id", Message: "rule " + RuleCurveIsCurrent + ": curve " + origID + " was revised concurrently", Err: err}
 			}
 			return classify("insert exclusion", err)
 		}
@@ -187,7 +188,7 @@ func (db *DB) GetExclusion(ctx context.Context, id string) (*Exclusion, error) {
 	err = db.Pool.QueryRow(ctx, `SELECT revision_of, points, reason, range_reason, actor, at FROM exclusions WHERE curve_id = $1`, id).
 		Scan(&e.RevisionOf, &points, &e.Reason, &rr, &e.Actor, &e.At)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "curve %s is not an exclusion revision", id)
+		return nil, lab.Errorf(lab.KindNotFound, "curve %s is not an exclusion revision", id)
 	}
 	if err != nil {
 		return nil, classify("select exclusion "+id, err)

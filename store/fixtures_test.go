@@ -9,18 +9,19 @@ import (
 	"time"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
 // The fixtures describe an invented water lab: method "nitrate-ic" on an
 // invented ion chromatograph "ic-02".
 
-// wantKind fails the test unless err is a *store.Error of kind want.
-func wantKind(t *testing.T, err error, want store.Kind) {
+// wantKind fails the test unless err is a *lab.Error of kind want.
+func wantKind(t *testing.T, err error, want lab.Kind) {
 	t.Helper()
-	var se *store.Error
+	var se *lab.Error
 	if !errors.As(err, &se) {
-		t.Fatalf("error = %v (%T), want a *store.Error of kind %d", err, err, want)
+		t.Fatalf("error = %v (%T), want a *lab.Error of kind %d", err, err, want)
 	}
 	if se.Kind != want {
 		t.Fatalf("error kind = %d (%v), want %d", se.Kind, err, want)

@@ -6,6 +6,7 @@ import (
 	"testing"
 	"time"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -52,7 +53,7 @@ FROM generate_series(1, 100000) g`, created.ID, m.Name, baseTime)
 	if err != nil || deepAll.NextCursor == "" {
 		t.Fatalf("ListCurves for an unfiltered cursor: %v (cursor %q)", err, deepAll.NextCursor)
 	}
-	if _, err := db.ListCurves(ctx, store.CurveFilter{Cursor: deep.NextCursor}); store.KindOf(err) != store.KindInvalid {
+	if _, err := db.ListCurves(ctx, store.CurveFilter{Cursor: deep.NextCursor}); lab.KindOf(err) != lab.KindInvalid {
 		t.Errorf("a cursor issued for ic-7 nitrite was accepted without those filters: err %v", err)
 	}
 

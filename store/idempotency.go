@@ -4,6 +4,8 @@ import (
 	"context"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // Idempotency keys are scoped to the token that used them (primary key
@@ -23,7 +25,7 @@ RETURNING true`
 
 // errKeyReused is the refusal of a key used before with another body.
 func errKeyReused() error {
-	return &Error{Kind: KindInvalid, Field: "/headers/Idempotency-Key", Message: "Idempotency-Key reused with a different body"}
+	return &lab.Error{Kind: lab.KindInvalid, In: lab.InHeader, Field: "/Idempotency-Key", Message: "Idempotency-Key reused with a different body"}
 }
 
 // rowQuerier is what storedRun needs of a pool or a transaction.

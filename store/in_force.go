@@ -8,6 +8,8 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // inForceScan bounds how many of the newest curves CurveInForce examines
@@ -86,7 +88,7 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 			if age := k.qc.MaxAge(); age > 0 {
 				exp := c.AcquiredAt.Add(age).UTC()
 				if at.After(exp) {
-					return Errorf(KindNotFound, "no curve in force for %s on %s at %s: the newest usable curve %s, acquired %s, expired at %s (method %s revision %d allows curves %g hours old)",
+					return lab.Errorf(lab.KindNotFound, "no curve in force for %s on %s at %s: the newest usable curve %s, acquired %s, expired at %s (method %s revision %d allows curves %g hours old)",
 						analyte, instrument, stamp(at), c.ID, stamp(c.AcquiredAt), stamp(exp), c.Method, c.MethodRevision, k.qc.MaxCurveAgeHours)
 				}
 				in.ExpiresAt = &exp
@@ -105,7 +107,7 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 		if len(skipped) > 0 {
 			why = strings.Join(skipped, "; ")
 		}
-		return Errorf(KindNotFound, "no curve in force for %s on %s at %s: %s", analyte, instrument, stamp(at), why)
+		return lab.Errorf(lab.KindNotFound, "no curve in force for %s on %s at %s: %s", analyte, instrument, stamp(at), why)
 	})
 	if err != nil {
 		return nil, err

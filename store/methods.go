@@ -15,6 +15,7 @@ import (
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
 
 // Analyte is one analyte a method measures, with its unit (a UCUM code).
@@ -76,30 +77,30 @@ var (
 
 func checkMethod(in MethodInput) error {
 	if strings.TrimSpace(in.Name) == "" || len(in.Name) > 200 {
-		return FieldError("/name", "name must be 1 to 200 characters")
+		return lab.FieldError("/name", "name must be 1 to 200 characters")
 	}
 	if !slices.Contains(models, in.Model) {
-		return FieldError("/model", "unknown model %q", in.Model)
+		return lab.FieldError("/model", "unknown model %q", in.Model)
 	}
 	if !slices.Contains(weightings, in.Weighting) {
-		return FieldError("/weighting", "unknown weighting %q", in.Weighting)
+		return lab.FieldError("/weighting", "unknown weighting %q", in.Weighting)
 	}
 	if !(in.Confidence > 0 && in.Confidence < 1) {
-		return FieldError("/confidence", "confidence must be between 0 and 1, exclusive")
+		return lab.FieldError("/confidence", "confidence must be between 0 and 1, exclusive")
 	}
 	if len(in.Analytes) == 0 {
-		return FieldError("/analytes", "at least one analyte is required")
+		return lab.FieldError("/analytes", "at least one analyte is required")
 	}
 	seen := map[string]bool{}
 	for i, a := range in.Analytes {
 		if strings.TrimSpace(a.Name) == "" {
-			return FieldError(fmt.Sprintf("/analytes/%d/name", i), "analyte name is required")
+			return lab.FieldError(fmt.Sprintf("/analytes/%d/name", i), "analyte name is required")
 		}
 		if strings.TrimSpace(a.Unit) == "" {
-			return FieldError(fmt.Sprintf("/analytes/%d/unit", i), "unit is required")
+			return lab.FieldError(fmt.Sprintf("/analytes/%d/unit", i), "unit is required")
 		}
 		if seen[a.Name] {
-			return FieldError(fmt.Sprintf("/analytes/%d/name", i), "analyte %q is listed twice", a.Name)
+			return lab.FieldError(fmt.Sprintf("/analytes/%d/name", i), "analyte %q is listed twice", a.Name)
 		}
 		seen[a.Name] = true
 	}
@@ -109,7 +110,7 @@ func checkMethod(in MethodInput) error {
 	v := reflect.ValueOf(in.Acceptance)
 	for i := 0; i < v.NumField(); i++ {
 		if f := v.Field(i); f.Kind() == reflect.Float64 && (math.IsNaN(f.Float()) || math.IsInf(f.Float(), 0)) {
-			return FieldError("/acceptance", "%s must be a finite number", v.Type().Field(i).Name)
+			return lab.FieldError("/acceptance", "%s must be a finite number", v.Type().Field(i).Name)
 		}
 	}
 	return nil
@@ -283,7 +284,7 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*Method, error) {
 func (db *DB) GetMethod(ctx context.Context, name string) (*Method, error) {
 	m, err := scanMethod(db.Pool.QueryRow(ctx, sqlSelectMethod+` WHERE name = $1 ORDER BY revision DESC LIMIT 1`, name))
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "method %q not found", name)
+		return nil, lab.Errorf(lab.KindNotFound, "method %q not found", name)
 	}
 	if err != nil {
 		return nil, classify("select method "+name, err)
@@ -295,7 +296,7 @@ func (db *DB) GetMethod(ctx context.Context, name string) (*Method, error) {
 func (db *DB) GetMethodRevision(ctx context.Context, name string, rev int) (*Method, error) {
 	m, err := scanMethod(db.Pool.QueryRow(ctx, sqlSelectMethod+` WHERE name = $1 AND revision = $2`, name, rev))
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "method %q revision %d not found", name, rev)
+		return nil, lab.Errorf(lab.KindNotFound, "method %q revision %d not found", name, rev)
 	}
 	if err != nil {
 		return nil, classify(fmt.Sprintf("select method %s/%d", name, rev), err)

@@ -9,6 +9,7 @@ import (
 	"testing"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -63,9 +64,9 @@ func TestCreateMethodRevisions(t *testing.T) {
 	}
 
 	_, err = db.GetMethod(ctx, "no-such-method")
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 	_, err = db.GetMethodRevision(ctx, "nitrate-ic", 3)
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 
 	var audits int
 	if err := db.Pool.QueryRow(ctx, `SELECT count(*) FROM audit WHERE entity_type = 'method'`).Scan(&audits); err != nil {
@@ -130,8 +131,8 @@ func TestCreateMethodRefusesBadInput(t *testing.T) {
 			in := methodInput("nitrate-ic")
 			tt.change(&in)
 			_, _, err := db.CreateMethod(context.Background(), in, "admin-test")
-			wantKind(t, err, store.KindInvalid)
-			if got := err.(*store.Error).Field; got != tt.field {
+			wantKind(t, err, lab.KindInvalid)
+			if got := err.(*lab.Error).Field; got != tt.field {
 				t.Errorf("field = %q, want %q", got, tt.field)
 			}
 		})

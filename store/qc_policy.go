@@ -5,6 +5,7 @@ import (
 	"time"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
 
 // QCPolicy holds a method's settings for the QC loop: how verification
@@ -38,10 +39,10 @@ func (q QCPolicy) withDefaults() QCPolicy {
 
 func (q QCPolicy) check() error {
 	if !finite(q.VerificationTolerancePct) || q.VerificationTolerancePct <= 0 || q.VerificationTolerancePct > 100 {
-		return FieldError("/acceptance/verification_tolerance_pct", "must be a number in (0, 100]")
+		return lab.FieldError("/acceptance/verification_tolerance_pct", "must be a number in (0, 100]")
 	}
 	if !finite(q.MaxCurveAgeHours) || q.MaxCurveAgeHours < 0 || q.MaxCurveAgeHours > 24*366*10 {
-		return FieldError("/max_curve_age_hours", "must be a number of hours in (0, 87840], or absent for no limit")
+		return lab.FieldError("/max_curve_age_hours", "must be a number of hours in (0, 87840], or absent for no limit")
 	}
 	return nil
 }

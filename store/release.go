@@ -9,6 +9,8 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // Release states of a sample result.
@@ -116,7 +118,7 @@ SELECT c.status, c.verdict, c.slope IS NOT NULL, c.failed_checks, c.reviewed_by,
 FROM curves c LEFT JOIN reviews r ON r.curve_id = c.id
 WHERE c.id = $1`, id).Scan(&f.Status, &f.Verdict, &f.Fitted, &f.FailedChecks, &reviewer, &reason, &revision)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "curve %s not found", id)
+		return nil, lab.Errorf(lab.KindNotFound, "curve %s not found", id)
 	}
 	if err != nil {
 		return nil, classify("select facts of curve "+id, err)

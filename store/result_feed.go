@@ -7,6 +7,8 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // Kinds of result events.
@@ -146,7 +148,7 @@ func decodeFeedCursor(s string) (int64, error) {
 	}
 	b, err := base64.RawURLEncoding.DecodeString(s)
 	if err != nil || len(b) != 8 || int64(binary.BigEndian.Uint64(b)) < 0 {
-		return 0, FieldError("/since", "the cursor is not one this service issued")
+		return 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "since", "the cursor is not one this service issued")
 	}
 	return int64(binary.BigEndian.Uint64(b)), nil
 }
@@ -165,7 +167,7 @@ func (db *DB) ResultFeed(ctx context.Context, since string, limit int) (*FeedPag
 	case limit == 0:
 		limit = DefaultFeedLimit
 	case limit < 0 || limit > MaxFeedLimit:
-		return nil, FieldError("/limit", "limit must be between 1 and %d", MaxFeedLimit)
+		return nil, lab.ParamError(lab.KindInvalid, lab.InQuery, "limit", "limit must be between 1 and %d", MaxFeedLimit)
 	}
 	rows, err := db.Pool.Query(ctx, `
 SELECT e.seq, e.at, e.kind, e.cause, e.release_state, coalesce(e.previous_state, ''), e.reason,

@@ -9,6 +9,7 @@ import (
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
 
 // Flags a stored result may carry besides calib's prediction flags.
@@ -194,7 +195,7 @@ func (db *DB) RunResults(ctx context.Context, id string) ([]Result, error) {
 		var one int
 		if err := tx.QueryRow(ctx, `SELECT 1 FROM runs WHERE id = $1`, id).Scan(&one); err != nil {
 			if errors.Is(err, pgx.ErrNoRows) {
-				return Errorf(KindNotFound, "run %s not found", id)
+				return lab.Errorf(lab.KindNotFound, "run %s not found", id)
 			}
 			return classify("select run", err)
 		}
@@ -217,7 +218,7 @@ func (db *DB) SampleResults(ctx context.Context, sampleID string) ([]Result, err
 		return nil, err
 	}
 	if len(out) == 0 {
-		return nil, &Error{Kind: KindNotFound, Field: "/sample_id", Message: "no result for sample id " + sampleID + "; samples are posted with a run or with POST /v1/runs/{id}/samples"}
+		return nil, &lab.Error{Kind: lab.KindNotFound, In: lab.InPath, Field: "/sample_id", Message: "no result for sample id " + sampleID + "; samples are posted with a run or with POST /v1/runs/{id}/samples"}
 	}
 	return out, nil
 }

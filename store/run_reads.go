@@ -10,6 +10,8 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // RunReadsQuery names what ingesting a run reads before its transaction
@@ -48,7 +50,7 @@ const sqlSelectLatestMethod = sqlSelectMethod + ` WHERE name = $1 ORDER BY revis
 // run still uses the method's latest revision at the time it is stored.
 func (db *DB) ReadForRun(ctx context.Context, q RunReadsQuery) (*RunReads, error) {
 	if q.Limit < 1 || q.Limit > MaxTrendPoints {
-		return nil, Errorf(KindInvalid, "limit must be in [1, %d]", MaxTrendPoints)
+		return nil, lab.Errorf(lab.KindInvalid, "limit must be in [1, %d]", MaxTrendPoints)
 	}
 	b := &pgx.Batch{}
 	if q.Key != "" {
@@ -85,13 +87,13 @@ func (db *DB) readRunReads(br pgx.BatchResults, q RunReadsQuery, analytes []stri
 		case err == nil:
 			out.Replay = replay
 			return out, nil
-		case KindOf(err) != KindNotFound:
+		case lab.KindOf(err) != lab.KindNotFound:
 			return nil, err
 		}
 	}
 	m, err := scanMethodVia(br.QueryRow(), &db.methodDecodes)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "method %q not found", q.Method)
+		return nil, lab.Errorf(lab.KindNotFound, "method %q not found", q.Method)
 	}
 	if err != nil {
 		return nil, classify("select method "+q.Method, err)
@@ -118,7 +120,7 @@ func decodeStoredRun(row pgx.Row, requestHash []byte) (*RunCreated, error) {
 	var hash, body []byte
 	err := row.Scan(&hash, &body)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "idempotency key not used")
+		return nil, lab.Errorf(lab.KindNotFound, "idempotency key not used")
 	}
 	if err != nil {
 		return nil, classify("select idempotency key", err)

@@ -10,6 +10,7 @@ import (
 	"testing"
 	"time"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -190,7 +191,7 @@ func TestGroupWithABadRunFallsBack(t *testing.T) {
 	if g, a := store.RunWriteCounts(db); g != g0 || a-a0 != int64(len(ins)) {
 		t.Fatalf("written in groups %d, alone %d; want the group refused and all %d alone", g-g0, a-a0, len(ins))
 	}
-	wantKind(t, errs[1], store.KindInvalid)
+	wantKind(t, errs[1], lab.KindInvalid)
 	for _, i := range []int{0, 2, 3, 4} {
 		if errs[i] != nil {
 			t.Fatalf("run %d: %v", i, errs[i])

@@ -13,6 +13,7 @@ import (
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
 
 // Source formats of a run.
@@ -106,28 +107,28 @@ func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 func checkRun(in *RunInput, curves []CurveInput) error {
 	switch {
 	case strings.TrimSpace(in.Method) == "":
-		return FieldError("/method", "method is required")
+		return lab.FieldError("/method", "method is required")
 	case in.MethodRevision < 1:
-		return Errorf(KindInvalid, "method revision is required")
+		return lab.Errorf(lab.KindInvalid, "method revision is required")
 	case strings.TrimSpace(in.Instrument) == "" || len(in.Instrument) > 200:
-		return FieldError("/instrument", "instrument must be 1 to 200 characters")
+		return lab.FieldError("/instrument", "instrument must be 1 to 200 characters")
 	case in.AcquiredAt.IsZero():
-		return FieldError("/acquired_at", "acquired_at is required")
+		return lab.FieldError("/acquired_at", "acquired_at is required")
 	case in.SourceFormat != FormatJSON && in.SourceFormat != FormatCSV:
-		return Errorf(KindInvalid, "unknown source format %q", in.SourceFormat)
+		return lab.Errorf(lab.KindInvalid, "unknown source format %q", in.SourceFormat)
 	case len(in.RequestHash) == 0:
-		return Errorf(KindInvalid, "request hash is required")
+		return lab.Errorf(lab.KindInvalid, "request hash is required")
 	case strings.TrimSpace(in.Actor) == "":
-		return Errorf(KindInvalid, "actor is required")
+		return lab.Errorf(lab.KindInvalid, "actor is required")
 	case len(in.Standards) == 0:
-		return FieldError("/standards", "at least one standard is required")
+		return lab.FieldError("/standards", "at least one standard is required")
 	}
 	if in.IdempotencyKey != "" {
 		if len(in.IdempotencyKey) > 255 {
-			return Errorf(KindInvalid, "Idempotency-Key must be at most 255 characters")
+			return lab.Errorf(lab.KindInvalid, "Idempotency-Key must be at most 255 characters")
 		}
 		if _, err := parseID("token", in.TokenID); err != nil {
-			return Errorf(KindInvalid, "an Idempotency-Key needs the token id it is scoped to")
+			return lab.Errorf(lab.KindInvalid, "an Idempotency-Key needs the token id it is scoped to")
 		}
 	}
 	type levelKey struct{ analyte, level string }
@@ -136,21 +137,21 @@ func checkRun(in *RunInput, curves []CurveInput) error {
 		p := fmt.Sprintf("/standards/%d", i)
 		switch {
 		case strings.TrimSpace(s.Analyte) == "":
-			return FieldError(p+"/analyte", "analyte is required")
+			return lab.FieldError(p+"/analyte", "analyte is required")
 		case strings.TrimSpace(s.Level) == "":
-			return FieldError(p+"/level", "level is required")
+			return lab.FieldError(p+"/level", "level is required")
 		case !finite(s.Concentration) || s.Concentration < 0:
-			return FieldError(p+"/concentration", "concentration must be a finite number >= 0")
+			return lab.FieldError(p+"/concentration", "concentration must be a finite number >= 0")
 		case len(s.Responses) == 0:
-			return FieldError(p+"/responses", "at least one response is required")
+			return lab.FieldError(p+"/responses", "at least one response is required")
 		}
 		if j, dup := seen[levelKey{s.Analyte, s.Level}]; dup {
-			return FieldError(p+"/level", "level %q of analyte %q is given twice (also /standards/%d)", s.Level, s.Analyte, j)
+			return lab.FieldError(p+"/level", "level %q of analyte %q is given twice (also /standards/%d)", s.Level, s.Analyte, j)
 		}
 		seen[levelKey{s.Analyte, s.Level}] = i
 		for k, r := range s.Responses {
 			if !finite(r) {
-				return FieldError(fmt.Sprintf("%s/responses/%d", p, k), "response must be a finite number")
+				return lab.FieldError(fmt.Sprintf("%s/responses/%d", p, k), "response must be a finite number")
 			}
 		}
 	}
@@ -335,7 +336,7 @@ func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *RunCreat
 			if errors.Is(err, pgx.ErrNoRows) {
 				// Someone holds the key and has committed: replay or refuse.
 				replay, err = storedRun(ctx, tx, in.TokenID, in.IdempotencyKey, in.RequestHash)
-				if KindOf(err) == KindNotFound {
+				if lab.KindOf(err) == lab.KindNotFound {
 					return fmt.Errorf("store: idempotency key %q vanished while claimed", in.IdempotencyKey)
 				}
 				return err
@@ -353,7 +354,7 @@ func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *RunCreat
 		}
 		if err := tx.SendBatch(ctx, batch).Close(); err != nil {
 			if pgCode(err) == codeForeignKeyViolation {
-				return &Error{Kind: KindInvalid, Field: "/method",
+				return &lab.Error{Kind: lab.KindInvalid, Field: "/method",
 					Message: fmt.Sprintf("method %q has no revision %d", in.Method, in.MethodRevision), Err: err}
 			}
 			if pgCode(err) == codeUniqueViolation && pgConstraint(err) == "runs_pkey" {
@@ -363,7 +364,7 @@ func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *RunCreat
 				return errStoredByGroup
 			}
 			if pgCode(err) == codeUniqueViolation {
-				return &Error{Kind: KindInvalid, Field: "/samples",
+				return &lab.Error{Kind: lab.KindInvalid, Field: "/samples",
 					Message: "a sample id appears twice for one analyte; sample ids are unique per analyte within a run", Err: err}
 			}
 			return classify("insert run "+runID, err)
@@ -505,7 +506,7 @@ SELECT method, method_revision, instrument, acquired_at, operator, received_at, 
 FROM runs WHERE id = $1`, id).Scan(&r.Method, &r.MethodRevision, &r.Instrument, &r.AcquiredAt, &operator,
 		&r.ReceivedAt, &r.ReceivedBy, &r.SourceFormat)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "run %s not found", id)
+		return nil, lab.Errorf(lab.KindNotFound, "run %s not found", id)
 	}
 	if err != nil {
 		return nil, classify("select run", err)

@@ -11,6 +11,7 @@ import (
 	"github.com/jackc/pgx/v5/pgconn"
 	"github.com/jackc/pgx/v5/pgxpool"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -74,9 +75,9 @@ func TestCreateRunStoresEverything(t *testing.T) {
 	}
 
 	_, err = db.GetRun(ctx, "0190a1b2-0000-7000-8000-000000000000")
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 	_, err = db.GetRun(ctx, "run-1")
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 }
 
 func TestCreateRunKeepsAFailedFit(t *testing.T) {
@@ -111,11 +112,11 @@ func TestCreateRunIdempotencyKey(t *testing.T) {
 	db := newDB(t)
 	ctx := context.Background()
 	m := mustMethod(t, db, "nitrate-ic")
-	tokenA, _, err := db.CreateToken(ctx, "ic-02", []string{store.ScopeRunsWrite}, "admin-test")
+	tokenA, _, err := db.CreateToken(ctx, "ic-02", []string{lab.ScopeRunsWrite}, "admin-test")
 	if err != nil {
 		t.Fatal(err)
 	}
-	tokenB, _, err := db.CreateToken(ctx, "ic-03", []string{store.ScopeRunsWrite}, "admin-test")
+	tokenB, _, err := db.CreateToken(ctx, "ic-03", []string{lab.ScopeRunsWrite}, "admin-test")
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -144,14 +145,14 @@ func TestCreateRunIdempotencyKey(t *testing.T) {
 	other := in
 	other.RequestHash = hashOf("another body")
 	_, err = db.CreateRun(ctx, other, curves)
-	wantKind(t, err, store.KindInvalid)
-	if msg := err.(*store.Error).Message; msg != "Idempotency-Key reused with a different body" {
+	wantKind(t, err, lab.KindInvalid)
+	if msg := err.(*lab.Error).Message; msg != "Idempotency-Key reused with a different body" {
 		t.Errorf("message = %q", msg)
 	}
 	_, err = db.LookupIdempotency(ctx, tokenA, in.IdempotencyKey, other.RequestHash)
-	wantKind(t, err, store.KindInvalid)
+	wantKind(t, err, lab.KindInvalid)
 	_, err = db.LookupIdempotency(ctx, tokenA, "never-used", in.RequestHash)
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 	// ReadForRun makes LookupIdempotency's decisions in its batch.
 	q := store.RunReadsQuery{TokenID: tokenA, Key: in.IdempotencyKey, RequestHash: in.RequestHash,
 		Method: m.Name, Instrument: in.Instrument, Before: in.AcquiredAt, Limit: 20}
@@ -161,7 +162,7 @@ func TestCreateRunIdempotencyKey(t *testing.T) {
 	}
 	q.RequestHash = other.RequestHash
 	_, err = db.ReadForRun(ctx, q)
-	wantKind(t, err, store.KindInvalid)
+	wantKind(t, err, lab.KindInvalid)
 	q.Key, q.RequestHash = "never-used", in.RequestHash
 	reads, err = db.ReadForRun(ctx, q)
 	if err != nil || reads.Replay != nil || reads.Method == nil || reads.Method.Name != m.Name {
@@ -184,7 +185,7 @@ func TestCreateRunConcurrentSameKey(t *testing.T) {
 	db := newDB(t)
 	ctx := context.Background()
 	m := mustMethod(t, db, "nitrate-ic")
-	token, _, err := db.CreateToken(ctx, "ic-02", []string{store.ScopeRunsWrite}, "admin-test")
+	token, _, err := db.CreateToken(ctx, "ic-02", []string{lab.ScopeRunsWrite}, "admin-test")
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -252,8 +253,8 @@ func TestCreateRunRefusesBadInput(t *testing.T) {
 			in, curves := runInput(m, baseTime)
 			tt.change(&in)
 			_, err := db.CreateRun(context.Background(), in, curves)
-			wantKind(t, err, store.KindInvalid)
-			if got := err.(*store.Error).Field; got != tt.field {
+			wantKind(t, err, lab.KindInvalid)
+			if got := err.(*lab.Error).Field; got != tt.field {
 				t.Errorf("field = %q, want %q", got, tt.field)
 			}
 		})
@@ -262,8 +263,8 @@ func TestCreateRunRefusesBadInput(t *testing.T) {
 		in, curves := runInput(m, baseTime)
 		in.MethodRevision = 9
 		_, err := db.CreateRun(context.Background(), in, curves)
-		wantKind(t, err, store.KindInvalid)
-		if got := err.(*store.Error).Field; got != "/method" {
+		wantKind(t, err, lab.KindInvalid)
+		if got := err.(*lab.Error).Field; got != "/method" {
 			t.Errorf("field = %q, want /method", got)
 		}
 	})
@@ -345,9 +346,9 @@ func TestDatabaseDownIsUnavailable(t *testing.T) {
 	defer db.Close()
 	ctx := context.Background()
 	_, err = db.GetCurve(ctx, "0190a1b2-0000-7000-8000-000000000000")
-	wantKind(t, err, store.KindUnavailable)
-	_, _, err = db.CreateToken(ctx, "x", []string{store.ScopeAdmin}, "admin-test")
-	wantKind(t, err, store.KindUnavailable)
+	wantKind(t, err, lab.KindUnavailable)
+	_, _, err = db.CreateToken(ctx, "x", []string{lab.ScopeAdmin}, "admin-test")
+	wantKind(t, err, lab.KindUnavailable)
 	_, err = db.LookupToken(ctx, "ck_whatever")
-	wantKind(t, err, store.KindUnavailable)
+	wantKind(t, err, lab.KindUnavailable)
 }

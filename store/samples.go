@@ -11,6 +11,7 @@ import (
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
 
 // ActionSamplesAdd is the audit action of samples posted after their run.
@@ -65,17 +66,17 @@ func checkSample(s *Sample, p string) error {
 	}
 	switch {
 	case strings.TrimSpace(s.ID) == "" || len(s.ID) > 200:
-		return FieldError(p+"/id", "sample id must be 1 to 200 characters")
+		return lab.FieldError(p+"/id", "sample id must be 1 to 200 characters")
 	case strings.TrimSpace(s.Analyte) == "":
-		return FieldError(p+"/analyte", "analyte is required")
+		return lab.FieldError(p+"/analyte", "analyte is required")
 	case len(s.Responses) == 0:
-		return FieldError(p+"/responses", "at least one response is required")
+		return lab.FieldError(p+"/responses", "at least one response is required")
 	case !finite(s.Dilution) || s.Dilution <= 0:
-		return FieldError(p+"/dilution", "dilution must be a finite number > 0")
+		return lab.FieldError(p+"/dilution", "dilution must be a finite number > 0")
 	}
 	for k, r := range s.Responses {
 		if !finite(r) {
-			return FieldError(fmt.Sprintf("%s/responses/%d", p, k), "response must be a finite number")
+			return lab.FieldError(fmt.Sprintf("%s/responses/%d", p, k), "response must be a finite number")
 		}
 	}
 	return nil
@@ -94,7 +95,7 @@ func (db *DB) AddSamples(ctx context.Context, runID string, samples []Sample, ac
 		return nil, err
 	}
 	if len(samples) == 0 {
-		return nil, FieldError("/samples", "at least one sample is required")
+		return nil, lab.FieldError("/samples", "at least one sample is required")
 	}
 	now := time.Now().UTC()
 	in := make([]Sample, len(samples))
@@ -121,7 +122,7 @@ func (db *DB) AddSamples(ctx context.Context, runID string, samples []Sample, ac
 SELECT r.acquired_at, coalesce((SELECT max(position) + 1 FROM run_samples WHERE run_id = r.id), 0)
 FROM runs r WHERE r.id = $1`, runID).Scan(&runAt, &next)
 		if errors.Is(err, pgx.ErrNoRows) {
-			return Errorf(KindNotFound, "run %s not found", runID)
+			return lab.Errorf(lab.KindNotFound, "run %s not found", runID)
 		}
 		if err != nil {
 			return classify("select run "+runID, err)
@@ -143,14 +144,14 @@ FROM runs r WHERE r.id = $1`, runID).Scan(&runAt, &next)
 			p := fmt.Sprintf("/samples/%d", i)
 			c, ok := curves[s.Analyte]
 			if !ok {
-				return FieldError(p+"/analyte", "run %s has no curve for the analyte %q to quantify this sample against", runID, s.Analyte)
+				return lab.FieldError(p+"/analyte", "run %s has no curve for the analyte %q to quantify this sample against", runID, s.Analyte)
 			}
 			if seen[key{s.Analyte, s.ID}] {
-				return FieldError(p+"/id", "sample %q of %s is already in run %s; sample ids are unique per analyte within a run", s.ID, s.Analyte, runID)
+				return lab.FieldError(p+"/id", "sample %q of %s is already in run %s; sample ids are unique per analyte within a run", s.ID, s.Analyte, runID)
 			}
 			seen[key{s.Analyte, s.ID}] = true
 			if s.AcquiredAt.Before(runAt) {
-				return FieldError(p+"/acquired_at", "a sample cannot be quantified against standards acquired after it (the run was acquired at %s)", runAt.UTC().Format(time.RFC3339))
+				return lab.FieldError(p+"/acquired_at", "a sample cannot be quantified against standards acquired after it (the run was acquired at %s)", runAt.UTC().Format(time.RFC3339))
 			}
 			f, ok := facts[c.id]
 			if !ok {
@@ -166,7 +167,7 @@ FROM runs r WHERE r.id = $1`, runID).Scan(&runAt, &next)
 		}
 		if err := tx.SendBatch(ctx, b).Close(); err != nil {
 			if pgCode(err) == codeUniqueViolation {
-				return &Error{Kind: KindConflict, Message: "a sample with the same id was added to this run concurrently", Err: err}
+				return &lab.Error{Kind: lab.KindConflict, Message: "a sample with the same id was added to this run concurrently", Err: err}
 			}
 			return classify("insert samples of run "+runID, err)
 		}

@@ -7,6 +7,8 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // Trend parameters: the curve columns a trend can follow.
@@ -38,7 +40,7 @@ type TrendFilter struct {
 // from the start of the series). It reads the history index backwards.
 func (db *DB) TrendSeries(ctx context.Context, f TrendFilter) (curves []CurveSummary, truncated bool, err error) {
 	if f.Instrument == "" || f.Analyte == "" {
-		return nil, false, FieldError("/instrument", "a trend needs an instrument and an analyte")
+		return nil, false, lab.FieldError("/instrument", "a trend needs an instrument and an analyte")
 	}
 	args := []any{f.Instrument, f.Analyte}
 	sql := `SELECT ` + curveColumns + ` FROM curves WHERE instrument = $1 AND analyte = $2`
@@ -103,7 +105,7 @@ LIMIT $4`
 // scan of the partial index curves_approved_history.
 func (db *DB) RecentApprovedSlopes(ctx context.Context, instrument, analyte string, before time.Time, limit int) ([]float64, error) {
 	if limit < 1 || limit > MaxTrendPoints {
-		return nil, Errorf(KindInvalid, "limit must be in [1, %d]", MaxTrendPoints)
+		return nil, lab.Errorf(lab.KindInvalid, "limit must be in [1, %d]", MaxTrendPoints)
 	}
 	rows, err := db.Pool.Query(ctx, sqlRecentApprovedSlopes, instrument, analyte, before, limit)
 	if err != nil {

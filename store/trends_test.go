@@ -6,6 +6,7 @@ import (
 	"testing"
 	"time"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -68,7 +69,7 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 	})
 	t.Run("needs instrument and analyte", func(t *testing.T) {
 		_, _, err := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02"})
-		wantKind(t, err, store.KindInvalid)
+		wantKind(t, err, lab.KindInvalid)
 	})
 	t.Run("recent approved slopes, oldest first, before the new curve", func(t *testing.T) {
 		got, err := db.RecentApprovedSlopes(ctx, "ic-02", "nitrate", baseTime.Add(10*24*time.Hour), 2)
@@ -105,8 +106,8 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 			}
 		}
 		_, err = db.ReadForRun(ctx, store.RunReadsQuery{Method: "no-such-method", Instrument: "ic-02", Before: before, Limit: 2})
-		wantKind(t, err, store.KindNotFound)
+		wantKind(t, err, lab.KindNotFound)
 		_, err = db.ReadForRun(ctx, store.RunReadsQuery{Method: m.Name, Instrument: "ic-02", Before: before, Limit: 0})
-		wantKind(t, err, store.KindInvalid)
+		wantKind(t, err, lab.KindInvalid)
 	})
 }

@@ -11,6 +11,7 @@ import (
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
 
 // Verification kinds and the audit action of a verification.
@@ -75,13 +76,13 @@ func (db *DB) CreateVerification(ctx context.Context, in VerificationInput) (*Ve
 		return nil, err
 	}
 	if in.Kind != VerificationInitial && in.Kind != VerificationContinuing {
-		return nil, FieldError("/kind", "kind must be %q or %q", VerificationInitial, VerificationContinuing)
+		return nil, lab.FieldError("/kind", "kind must be %q or %q", VerificationInitial, VerificationContinuing)
 	}
 	if strings.TrimSpace(in.Level) == "" {
-		return nil, FieldError("/level", "level is required")
+		return nil, lab.FieldError("/level", "level is required")
 	}
 	if in.At.IsZero() {
-		return nil, FieldError("/at", "at is required")
+		return nil, lab.FieldError("/at", "at is required")
 	}
 	id, err := newID()
 	if err != nil {
@@ -99,7 +100,7 @@ SELECT c.status, c.verdict, c.acquired_at, c.report, m.qc
 FROM curves c JOIN methods m ON m.name = c.method AND m.revision = c.method_revision
 WHERE c.id = $1 FOR UPDATE OF c`, curveID).Scan(&status, &verdict, &acquired, &raw, &qcRaw)
 		if errors.Is(err, pgx.ErrNoRows) {
-			return Errorf(KindNotFound, "curve %s not found", curveID)
+			return lab.Errorf(lab.KindNotFound, "curve %s not found", curveID)
 		}
 		if err != nil {
 			return classify("lock curve "+curveID, err)
@@ -110,18 +111,18 @@ WHERE c.id = $1 FOR UPDATE OF c`, curveID).Scan(&status, &verdict, &acquired, &r
 		}
 		switch {
 		case status == StatusRejected:
-			return Errorf(KindConflict, "rule %s: curve %s was rejected in review; a rejected curve quantifies nothing, so it cannot be verified (calibrate again)", RuleCurveNotRejected, curveID)
+			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s was rejected in review; a rejected curve quantifies nothing, so it cannot be verified (calibrate again)", RuleCurveNotRejected, curveID)
 		case revision != nil:
-			return Errorf(KindConflict, "rule %s: curve %s was superseded by its revision %s; verify against the revision", RuleCurveIsCurrent, curveID, *revision)
+			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s was superseded by its revision %s; verify against the revision", RuleCurveIsCurrent, curveID, *revision)
 		case in.At.Before(acquired):
-			return FieldError("/at", "rule %s: a verification is measured after its calibration (curve acquired at %s)", RuleAfterCalibration, acquired.UTC().Format(time.RFC3339))
+			return lab.FieldError("/at", "rule %s: a verification is measured after its calibration (curve acquired at %s)", RuleAfterCalibration, acquired.UTC().Format(time.RFC3339))
 		}
 		rep := new(calib.Report)
 		if err := json.Unmarshal(raw, rep); err != nil {
 			return fmt.Errorf("store: decode report of curve %s: %w", curveID, err)
 		}
 		if len(rep.Coefficients) == 0 {
-			return Errorf(KindConflict, "rule %s: curve %s could not be fitted, so nothing can be read back from it", RuleCurveHasFit, curveID)
+			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s could not be fitted, so nothing can be read back from it", RuleCurveHasFit, curveID)
 		}
 		var qc QCPolicy
 		if err := json.Unmarshal(qcRaw, &qc); err != nil {
@@ -132,7 +133,7 @@ WHERE c.id = $1 FOR UPDATE OF c`, curveID).Scan(&status, &verdict, &acquired, &r
 		if err != nil {
 			var ie *calib.InputError
 			if errors.As(err, &ie) {
-				return FieldError("/"+strings.ReplaceAll(strings.ReplaceAll(ie.Field, "[", "/"), "]", ""), "%s", ie.Reason)
+				return lab.FieldError("/"+strings.ReplaceAll(strings.ReplaceAll(ie.Field, "[", "/"), "]", ""), "%s", ie.Reason)
 			}
 			return fmt.Errorf("store: verify curve %s: %w", curveID, err)
 		}
@@ -179,7 +180,7 @@ func (db *DB) ListVerifications(ctx context.Context, id string) ([]Verification,
 		var one int
 		if err := tx.QueryRow(ctx, `SELECT 1 FROM curves WHERE id = $1`, id).Scan(&one); err != nil {
 			if errors.Is(err, pgx.ErrNoRows) {
-				return Errorf(KindNotFound, "curve %s not found", id)
+				return lab.Errorf(lab.KindNotFound, "curve %s not found", id)
 			}
 			return classify("select curve", err)
 		}

@@ -21,6 +21,7 @@ import (
 	"github.com/jackc/pgx/v5/pgxpool"
 
 	"curvekeeper/api"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
@@ -117,7 +118,7 @@ func TestTwoReplicasIngestOneStreamWithRetries(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer setup.Close()
-	_, admin, err := setup.CreateToken(ctx, "replica-admin", []string{store.ScopeAdmin}, "test")
+	_, admin, err := setup.CreateToken(ctx, "replica-admin", []string{lab.ScopeAdmin}, "test")
 	if err != nil {
 		t.Fatal(err)
 	}

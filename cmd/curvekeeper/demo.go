@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"curvekeeper/api"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -43,14 +44,14 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, std
 	if err != nil {
 		return err
 	}
-	_, adminSecret, err := db.CreateToken(ctx, "demo-admin", []string{api.ScopeAdmin}, "demo")
+	_, adminSecret, err := db.CreateToken(ctx, "demo-admin", []string{lab.ScopeAdmin}, "demo")
 	if err != nil {
 		return err
 	}
 	d := &demoClient{h: srv.Handler(), ctx: ctx}
 	tokens := map[string]string{"admin": adminSecret}
 	for _, t := range []struct{ name, scope string }{
-		{"demo-instrument", api.ScopeRunsWrite}, {"demo-lims", api.ScopeResultsRead}, {"demo-qa", api.ScopeCurvesReview},
+		{"demo-instrument", lab.ScopeRunsWrite}, {"demo-lims", lab.ScopeResultsRead}, {"demo-qa", lab.ScopeCurvesReview},
 	} {
 		var out struct {
 			Token string `json:"token"`
@@ -69,7 +70,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, std
 	var existing struct {
 		Curves []struct{} `json:"curves"`
 	}
-	if err := d.do(tokens[api.ScopeResultsRead], http.MethodGet, "/v1/curves?instrument="+demoICPMS+"&limit=1", nil, &existing); err != nil {
+	if err := d.do(tokens[lab.ScopeResultsRead], http.MethodGet, "/v1/curves?instrument="+demoICPMS+"&limit=1", nil, &existing); err != nil {
 		return err
 	}
 	loaded := 0
@@ -85,7 +86,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, std
 					Verdict string `json:"verdict"`
 				} `json:"curves"`
 			}
-			if err := d.doKey(tokens[api.ScopeRunsWrite], fmt.Sprintf("demo-run-%03d", i), "/v1/runs", r, &created); err != nil {
+			if err := d.doKey(tokens[lab.ScopeRunsWrite], fmt.Sprintf("demo-run-%03d", i), "/v1/runs", r, &created); err != nil {
 				return fmt.Errorf("demo run %d: %w", i, err)
 			}
 			loaded++
@@ -101,7 +102,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, std
 				// QA approved the older passing curves; the last week awaits review.
 				if c.Verdict == "pass" && r.AcquiredAt.Before(time.Now().AddDate(0, 0, -7)) {
 					body := map[string]any{"decision": "approve", "reason": "reviewed in the weekly QA round (demo)"}
-					if err := d.do(tokens[api.ScopeCurvesReview], http.MethodPost, "/v1/curves/"+c.ID+"/review", body, nil); err != nil {
+					if err := d.do(tokens[lab.ScopeCurvesReview], http.MethodPost, "/v1/curves/"+c.ID+"/review", body, nil); err != nil {
 						return err
 					}
 				}
@@ -122,7 +123,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, std
 	}
 	fmt.Fprintf(w, "\nTokens (shown once; only their hashes are stored):\n")
 	fmt.Fprintf(w, "  export ADMIN=%s\n  export INSTRUMENT=%s\n  export LIMS=%s\n  export QA=%s\n",
-		tokens[api.ScopeAdmin], tokens[api.ScopeRunsWrite], tokens[api.ScopeResultsRead], tokens[api.ScopeCurvesReview])
+		tokens[lab.ScopeAdmin], tokens[lab.ScopeRunsWrite], tokens[lab.ScopeResultsRead], tokens[lab.ScopeCurvesReview])
 	fmt.Fprintf(w, "\nStart the service (in another terminal) with the same settings, then try:\n")
 	fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" '%s/v1/curves?instrument=%s&limit=5'\n", base, demoICPMS)
 	if curved != "" {

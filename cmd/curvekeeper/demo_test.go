@@ -11,7 +11,7 @@ import (
 	"testing"
 
 	"curvekeeper/api"
-
+	"curvekeeper/lab"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
@@ -93,7 +93,7 @@ func demoTrendRejects(t *testing.T, ctx context.Context, db *store.DB) []string 
 	if err != nil {
 		t.Fatal(err)
 	}
-	_, secret, err := db.CreateToken(ctx, "demo-test-qa", []string{store.ScopeCurvesReview}, "test")
+	_, secret, err := db.CreateToken(ctx, "demo-test-qa", []string{lab.ScopeCurvesReview}, "test")
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -1,4 +1,4 @@
-package store
+package lab
 
 import (
 	"errors"
@@ -25,9 +25,29 @@ type Error struct {
 	Field   string // JSON pointer, e.g. "/standards/2/concentration"; may be empty
 	Message string
 	Err     error // the cause, for the log; may be nil
+	// In says where Field was given: in the body (the default) or as a
+	// parameter of the request's query, path or headers.
+	In Place
 	// Fields lists every offending field when there is more than one (rule
 	// breaches checked together); Field and Message then repeat the first.
 	Fields []FieldIssue
+}
+
+// Place is where an input was given.
+type Place int
+
+// The places of an input.
+const (
+	InBody   Place = iota // a field of the body; Field is a JSON pointer
+	InQuery               // a query parameter; Field is "/" and its name
+	InPath                // a path parameter; Field is "/" and its name
+	InHeader              // a header; Field is "/" and its name
+)
+
+// ParamError makes an *Error of kind k about the request parameter name
+// given in place in.
+func ParamError(k Kind, in Place, name, format string, args ...any) error {
+	return &Error{Kind: k, In: in, Field: "/" + name, Message: fmt.Sprintf(format, args...)}
 }
 
 // FieldIssue is one offending field and the rule it breaks.
