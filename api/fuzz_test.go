@@ -25,7 +25,6 @@ import (
 	"curvekeeper/api"
 	"curvekeeper/calib"
 	"curvekeeper/lab"
-	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
 
@@ -46,9 +45,9 @@ func newFuzzServer(f *testing.F) *fuzzServer {
 	if err != nil {
 		f.Fatal(err)
 	}
-	_, _, err = db.CreateMethod(ctx, store.MethodInput{
+	_, _, err = db.CreateMethod(ctx, lab.MethodInput{
 		Name: "nitrate-ic", Model: calib.Linear, Weighting: calib.WeightNone, Confidence: 0.95,
-		Analytes:   []store.Analyte{{Name: "nitrate", Unit: "mg/L"}, {Name: "nitrite", Unit: "mg/L"}},
+		Analytes:   []lab.Analyte{{Name: "nitrate", Unit: "mg/L"}, {Name: "nitrite", Unit: "mg/L"}},
 		Acceptance: calib.DefaultPolicy(),
 	}, "fuzz-setup")
 	if err != nil {

@@ -9,14 +9,13 @@ import (
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
 	"curvekeeper/lab"
-	"curvekeeper/store"
 )
 
 // CreateMethod stores a method, or a new revision of it when it changed.
 func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestObject) (oapi.CreateMethodResponseObject, error) {
 	p := mustPrincipal(ctx)
 	b := req.Body
-	in := store.MethodInput{
+	in := lab.MethodInput{
 		Name:        string(b.Name),
 		Model:       calib.Model(b.Model),
 		Weighting:   calib.Weighting(b.Weighting),
@@ -31,10 +30,10 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 	seen := map[string]bool{}
 	for i, a := range b.Analytes {
 		if seen[string(a.Name)] {
-			return nil, lab.FieldError(pointer("analytes", i, "name"), "analyte %q is listed twice", a.Name)
+			return nil, lab.FieldError(lab.Pointer("analytes", i, "name"), "analyte %q is listed twice", a.Name)
 		}
 		seen[string(a.Name)] = true
-		in.Analytes = append(in.Analytes, store.Analyte{Name: string(a.Name), Unit: string(a.Unit)})
+		in.Analytes = append(in.Analytes, lab.Analyte{Name: string(a.Name), Unit: string(a.Unit)})
 	}
 	m, created, err := s.db.CreateMethod(ctx, in, p.Actor())
 	if err != nil {
@@ -63,7 +62,7 @@ func (s *Server) ListMethods(ctx context.Context, _ oapi.ListMethodsRequestObjec
 // GetMethod returns a method's latest revision, or the one asked for.
 func (s *Server) GetMethod(ctx context.Context, req oapi.GetMethodRequestObject) (oapi.GetMethodResponseObject, error) {
 	var (
-		m   *store.Method
+		m   *lab.Method
 		err error
 	)
 	if req.Params.Revision != nil {
@@ -120,8 +119,8 @@ func policyFrom(a *oapi.AcceptanceInput) calib.Policy {
 
 // qcFrom reads the method's QC settings; zero values take the store's
 // defaults (verification tolerance ±20 %, US EPA SW-846 Method 8000D).
-func qcFrom(b *oapi.MethodRequest) store.QCPolicy {
-	var q store.QCPolicy
+func qcFrom(b *oapi.MethodRequest) lab.QCPolicy {
+	var q lab.QCPolicy
 	if b.Acceptance != nil && b.Acceptance.VerificationTolerancePct != nil {
 		q.VerificationTolerancePct = *b.Acceptance.VerificationTolerancePct
 	}
@@ -134,7 +133,7 @@ func qcFrom(b *oapi.MethodRequest) store.QCPolicy {
 	return q
 }
 
-func methodOut(m *store.Method) oapi.Method {
+func methodOut(m *lab.Method) oapi.Method {
 	pol := m.Acceptance
 	mandatory := make([]oapi.CheckName, 0, len(pol.Mandatory))
 	for _, c := range pol.Mandatory {

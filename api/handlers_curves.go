@@ -132,7 +132,7 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		if err != nil {
 			var ie *calib.InputError
 			if errors.As(err, &ie) {
-				return oapi.PredictionResponse{}, lab.FieldError(pointer("samples", i, ie.Field), "%s", ie.Reason)
+				return oapi.PredictionResponse{}, lab.FieldError(lab.Pointer("samples", i, ie.Field), "%s", ie.Reason)
 			}
 			return oapi.PredictionResponse{}, fmt.Errorf("api: predict sample %d: %w", i, err)
 		}

@@ -15,9 +15,9 @@ import (
 // each against the current curve of its analyte, in one transaction.
 func (s *Server) CreateRunSamples(ctx context.Context, req oapi.CreateRunSamplesRequestObject) (oapi.CreateRunSamplesResponseObject, error) {
 	p := mustPrincipal(ctx)
-	samples := make([]store.Sample, 0, len(req.Body.Samples))
+	samples := make([]lab.Sample, 0, len(req.Body.Samples))
 	for _, sm := range req.Body.Samples {
-		in := store.Sample{ID: string(sm.ID), Analyte: string(sm.Analyte), Responses: sm.Responses, Dilution: 1}
+		in := lab.Sample{ID: string(sm.ID), Analyte: string(sm.Analyte), Responses: sm.Responses, Dilution: 1}
 		if sm.Dilution != nil {
 			in.Dilution = *sm.Dilution
 		}

@@ -10,6 +10,7 @@ import (
 	"curvekeeper/api/curveplot"
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -83,12 +84,12 @@ func (s *Server) computeTrend(ctx context.Context, q trendQuery) (*trendResult, 
 		if !p.HasValue {
 			missing++
 		}
-		if p.HasValue && c.Status == store.StatusApproved && len(baseVals) < q.BaselineN {
+		if p.HasValue && c.Status == lab.StatusApproved && len(baseVals) < q.BaselineN {
 			p.InBaseline = true
 			baseVals = append(baseVals, p.Value)
 			t.BaselineIDs = append(t.BaselineIDs, c.ID)
 		}
-		if p.HasValue && c.Status != store.StatusRejected {
+		if p.HasValue && c.Status != lab.StatusRejected {
 			p.Evaluated = true
 			evalVals = append(evalVals, p.Value)
 			evalIdx = append(evalIdx, i)

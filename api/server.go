@@ -11,6 +11,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 
 	"curvekeeper/api/oapi"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -39,6 +40,7 @@ func DefaultConfig() Config {
 type Server struct {
 	cfg     Config
 	db      *store.DB
+	lab     *lab.Service
 	log     *slog.Logger
 	echo    *echo.Echo
 	metrics *metrics
@@ -78,7 +80,7 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 	if err != nil {
 		return nil, err
 	}
-	s := &Server{cfg: cfg, db: db, log: log, echo: e, metrics: newMetrics(db),
+	s := &Server{cfg: cfg, db: db, lab: lab.NewService(db), log: log, echo: e, metrics: newMetrics(db),
 		scopes: newScopeTable(doc), curves: newCurveCache(1024)}
 	if cfg.RateLimit > 0 {
 		s.limiter = newTokenLimiter(cfg.RateLimit, cfg.RateBurst)

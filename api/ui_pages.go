@@ -62,11 +62,11 @@ var uiPages = func() map[string]*template.Template {
 // statusWord names a review status for people.
 func statusWord(s string) string {
 	switch s {
-	case store.StatusPendingReview:
+	case lab.StatusPendingReview:
 		return "Pending review"
-	case store.StatusApproved:
+	case lab.StatusApproved:
 		return "Approved"
-	case store.StatusRejected:
+	case lab.StatusRejected:
 		return "Rejected"
 	}
 	return s
@@ -188,7 +188,7 @@ func parseDay(v string, end bool) (time.Time, error) {
 func (s *Server) uiCurveList(c echo.Context) error {
 	q := c.QueryParams()
 	v := listView{Filter: url.Values{}, First: q.Get("cursor") == "",
-		Statuses: []string{store.StatusPendingReview, store.StatusApproved, store.StatusRejected}}
+		Statuses: []string{lab.StatusPendingReview, lab.StatusApproved, lab.StatusRejected}}
 	for _, k := range []string{"instrument", "analyte", "status", "verdict", "from", "to", "limit"} {
 		if x := strings.TrimSpace(q.Get(k)); x != "" {
 			v.Filter.Set(k, x)
@@ -331,7 +331,7 @@ func (s *Server) curveView(c echo.Context, id string) (*curveView, error) {
 
 // equationText writes the fitted equation with 6 significant digits.
 func equationText(r *calib.Report) string {
-	b, ok := slopeOf(r)
+	b, ok := r.Slope()
 	if !ok {
 		return "no fit"
 	}
@@ -369,7 +369,7 @@ func (s *Server) uiReview(c echo.Context) error {
 	reason := strings.TrimSpace(c.FormValue("reason"))
 	problem := ""
 	switch {
-	case decision != store.DecisionApprove && decision != store.DecisionReject:
+	case decision != lab.DecisionApprove && decision != lab.DecisionReject:
 		problem = "Choose approve or reject."
 	case reason == "":
 		problem = "Give the reason for your decision; it is recorded in the audit trail."
@@ -394,7 +394,7 @@ func (s *Server) uiReview(c echo.Context) error {
 	}
 	v.Problem, v.Reason = problem, reason
 	status := http.StatusUnprocessableEntity
-	if v.Curve.Status != store.StatusPendingReview {
+	if v.Curve.Status != lab.StatusPendingReview {
 		status = http.StatusConflict
 	}
 	return s.render(c, status, "curve", pageData{Title: v.Curve.Instrument + " · " + v.Curve.Analyte, Nav: "curves", Data: v})

@@ -10,7 +10,6 @@ import (
 	"testing"
 
 	"curvekeeper/lab"
-	"curvekeeper/store"
 )
 
 func findCookie(t *testing.T, h http.Header, name string) *http.Cookie {
@@ -126,7 +125,7 @@ func TestUIScopes(t *testing.T) {
 			t.Errorf("review POST: %d, want 403", r.status)
 		}
 		c, err := e.db.GetCurve(context.Background(), e.failing)
-		if err != nil || c.Status != store.StatusPendingReview {
+		if err != nil || c.Status != lab.StatusPendingReview {
 			t.Errorf("curve status %v (%v), want still pending", c.Status, err)
 		}
 	})

@@ -13,6 +13,8 @@ import (
 	"github.com/getkin/kin-openapi/routers/gorillamux"
 	"github.com/labstack/echo/v4"
 	oapimw "github.com/oapi-codegen/echo-middleware"
+
+	"curvekeeper/lab"
 )
 
 func init() {
@@ -185,13 +187,11 @@ func fieldOf(prefix string, err error, fallback ...string) ProblemField {
 	var se *openapi3.SchemaError
 	if errors.As(err, &se) {
 		tokens := se.JSONPointer()
+		anys := make([]any, len(tokens))
 		for i, t := range tokens {
-			tokens[i] = pointerEscaper.Replace(t)
+			anys[i] = t
 		}
-		ptr := "/" + strings.Join(tokens, "/")
-		if ptr == "/" {
-			ptr = ""
-		}
+		ptr := lab.Pointer(anys...)
 		reason := se.Reason
 		if prefix != "" {
 			return ProblemField{Pointer: prefix + ptr, Detail: reason}
@@ -213,9 +213,6 @@ func fieldOf(prefix string, err error, fallback ...string) ProblemField {
 	}
 	return ProblemField{Pointer: prefix, Detail: msg}
 }
-
-// pointerEscaper escapes a reference token of a JSON pointer (RFC 6901).
-var pointerEscaper = strings.NewReplacer("~", "~0", "/", "~1")
 
 func firstLine(s string) string {
 	if i := strings.IndexByte(s, '\n'); i >= 0 {

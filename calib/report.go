@@ -142,7 +142,7 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	r.Checks = computeChecks(r, d, &des, f, w, opt.Policy, m.checks[:0], &dt)
 	dt.done()
 	r.Verdict = verdict(r.Checks)
-	if !r.finite() {
+	if !r.Finite() {
 		return nil, inputErr("points", "values are outside the numerically usable range")
 	}
 	return r, nil
@@ -343,23 +343,23 @@ func FailedReport(points []Point, opt Options, cause error) *Report {
 }
 
 // finite reports whether every float in the report is finite.
-func (r *Report) finite() bool {
-	if !finite(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
+func (r *Report) Finite() bool {
+	if !Finite(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
 		r.WeightScale, r.WeightFloor, r.Variance.C0, r.Variance.C1, r.Variance.Floor,
 		r.Limits.LOD, r.Limits.LOQ, r.Limits.CriticalValue, r.Limits.CriticalConc, r.Limits.DetectionLimit,
 		r.Range.Low, r.Range.High) {
 		return false
 	}
-	if !finite(r.Coefficients...) || !finite(r.StandardErrors...) {
+	if !Finite(r.Coefficients...) || !Finite(r.StandardErrors...) {
 		return false
 	}
 	for _, row := range r.Covariance {
-		if !finite(row...) {
+		if !Finite(row...) {
 			return false
 		}
 	}
 	for _, c := range r.WeightCandidates {
-		if !finite(c.SumAbsRE) {
+		if !Finite(c.SumAbsRE) {
 			return false
 		}
 	}
@@ -382,9 +382,9 @@ func (r *Report) finite() bool {
 	return s == 0
 }
 
-// finite reports whether every v is neither NaN nor ±Inf (v − v is NaN for
+// Finite reports whether every v is neither NaN nor ±Inf (v − v is NaN for
 // both, 0 for every finite v).
-func finite(v ...float64) bool {
+func Finite(v ...float64) bool {
 	var s float64
 	for _, x := range v {
 		s += x - x

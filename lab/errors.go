@@ -3,6 +3,8 @@ package lab
 import (
 	"errors"
 	"fmt"
+	"strconv"
+	"strings"
 )
 
 // Kind classifies an error for the caller; api maps each kind to one HTTP
@@ -83,3 +85,22 @@ func KindOf(err error) Kind {
 	}
 	return KindInternal
 }
+
+// Pointer builds a JSON pointer (RFC 6901) from reference tokens (strings
+// and ints), e.g. Pointer("standards", 2, "level") is "/standards/2/level".
+func Pointer(tokens ...any) string {
+	var b strings.Builder
+	for _, t := range tokens {
+		b.WriteByte('/')
+		switch v := t.(type) {
+		case int:
+			b.WriteString(strconv.Itoa(v))
+		case string:
+			b.WriteString(pointerEscaper.Replace(v))
+		}
+	}
+	return b.String()
+}
+
+// pointerEscaper escapes a reference token of a JSON pointer (RFC 6901).
+var pointerEscaper = strings.NewReplacer("~", "~0", "/", "~1")

@@ -41,8 +41,8 @@ func (p Principal) Actor() string { return "token:" + p.Name + ":" + p.TokenID }
 // CheckToken validates a new token's name and scopes and returns the scopes
 // deduplicated in the order of Scopes.
 func CheckToken(name string, scopes []string) ([]string, error) {
-	if strings.TrimSpace(name) == "" || len(name) > 200 {
-		return nil, FieldError("/name", "name must be 1 to 200 characters")
+	if strings.TrimSpace(name) == "" || len(name) > MaxNameLen {
+		return nil, FieldError("/name", "name must be 1 to %d characters", MaxNameLen)
 	}
 	if len(scopes) == 0 {
 		return nil, FieldError("/scopes", "at least one scope is required")

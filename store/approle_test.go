@@ -54,7 +54,7 @@ func TestAppRoleCannotChangeAudit(t *testing.T) {
 	if err != nil {
 		t.Fatalf("CreateRun as %s: %v", store.AppRole, err)
 	}
-	if _, err := db.ReviewCurve(ctx, created.Curves[0].ID, store.DecisionApprove, "", "qa-test"); err != nil {
+	if _, err := db.ReviewCurve(ctx, created.Curves[0].ID, lab.DecisionApprove, "", "qa-test"); err != nil {
 		t.Fatalf("ReviewCurve as %s: %v", store.AppRole, err)
 	}
 	id, secret, err := db.CreateToken(ctx, "lims", []string{lab.ScopeResultsRead}, "admin-test")

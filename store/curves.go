@@ -21,19 +21,6 @@ import (
 	"curvekeeper/lab"
 )
 
-// Verdicts and review statuses of a curve.
-const (
-	VerdictPass = "pass"
-	VerdictFail = "fail"
-
-	StatusPendingReview = "pending_review"
-	StatusApproved      = "approved"
-	StatusRejected      = "rejected"
-
-	DecisionApprove = "approve"
-	DecisionReject  = "reject"
-)
-
 // History page sizes.
 const (
 	DefaultCurveLimit = 50
@@ -290,10 +277,10 @@ func curveQuery(f CurveFilter) (sql string, args []any, limit int, err error) {
 	case limit < 0 || limit > MaxCurveLimit:
 		return "", nil, 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "limit", "limit must be between 1 and %d", MaxCurveLimit)
 	}
-	if f.Status != "" && !slices.Contains([]string{StatusPendingReview, StatusApproved, StatusRejected}, f.Status) {
+	if f.Status != "" && !slices.Contains([]string{lab.StatusPendingReview, lab.StatusApproved, lab.StatusRejected}, f.Status) {
 		return "", nil, 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "status", "unknown status %q", f.Status)
 	}
-	if f.Verdict != "" && f.Verdict != VerdictPass && f.Verdict != VerdictFail {
+	if f.Verdict != "" && f.Verdict != lab.VerdictPass && f.Verdict != lab.VerdictFail {
 		return "", nil, 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "verdict", "unknown verdict %q", f.Verdict)
 	}
 	var where []string
@@ -350,9 +337,9 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 	if err != nil {
 		return nil, err
 	}
-	status := map[string]string{DecisionApprove: StatusApproved, DecisionReject: StatusRejected}[decision]
+	status := map[string]string{lab.DecisionApprove: lab.StatusApproved, lab.DecisionReject: lab.StatusRejected}[decision]
 	if status == "" {
-		return nil, lab.FieldError("/decision", "decision must be %q or %q", DecisionApprove, DecisionReject)
+		return nil, lab.FieldError("/decision", "decision must be %q or %q", lab.DecisionApprove, lab.DecisionReject)
 	}
 	reason = strings.TrimSpace(reason)
 	var rv *Review
@@ -365,10 +352,10 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 		if err != nil {
 			return classify("select curve "+id, err)
 		}
-		if current != StatusPendingReview {
+		if current != lab.StatusPendingReview {
 			return lab.Errorf(lab.KindConflict, "curve %s was already reviewed: it is %s", id, current)
 		}
-		if decision == DecisionApprove && verdict == VerdictFail && reason == "" {
+		if decision == lab.DecisionApprove && verdict == lab.VerdictFail && reason == "" {
 			return lab.FieldError("/reason", "a curve that failed its acceptance checks can be approved only with a reason")
 		}
 		rv = &Review{CurveID: id, Decision: decision, Reason: reason, Actor: actor}

@@ -32,7 +32,7 @@ func TestGetCurveReturnsTheReportAsFitted(t *testing.T) {
 		t.Errorf("stored report differs from the fitted one:\n got %+v\nwant %+v", got.Report, curves[0].Report)
 	}
 	want := curves[0].Report
-	if got.Analyte != "nitrate" || got.Unit != "mg/L" || got.RunID != created.ID || got.Status != store.StatusPendingReview ||
+	if got.Analyte != "nitrate" || got.Unit != "mg/L" || got.RunID != created.ID || got.Status != lab.StatusPendingReview ||
 		got.Verdict != want.Verdict || got.EngineVersion != want.Engine || got.Model != want.Model || got.Review != nil {
 		t.Errorf("curve row = %+v", got.CurveSummary)
 	}
@@ -52,7 +52,7 @@ func TestGetCurveReturnsTheReportAsFitted(t *testing.T) {
 // storeCurves stores n runs of two curves each: instruments ic-02 and ic-03
 // alternate, and acquisition times repeat every 4 runs, so many curves tie on
 // acquired_at and the id must break the ties.
-func storeCurves(t *testing.T, db *store.DB, m *store.Method, n int) {
+func storeCurves(t *testing.T, db *store.DB, m *lab.Method, n int) {
 	t.Helper()
 	for i := range n {
 		in, curves := runInput(m, baseTime.Add(time.Duration(i%4)*time.Hour))
@@ -121,8 +121,8 @@ func TestListCurvesKeysetPagination(t *testing.T) {
 		{"all, pages of 1", store.CurveFilter{Limit: 1}, 50, 50},
 		{"ic-03 nitrate", store.CurveFilter{Instrument: "ic-03", Analyte: "nitrate", Limit: 5}, 12, 3},
 		{"time window", store.CurveFilter{From: baseTime.Add(time.Hour), To: baseTime.Add(3 * time.Hour), Limit: 5}, 24, 5},
-		{"pending review", store.CurveFilter{Status: store.StatusPendingReview, Limit: 9}, 50, 6},
-		{"failed", store.CurveFilter{Verdict: store.VerdictFail, Limit: 9}, 0, 1},
+		{"pending review", store.CurveFilter{Status: lab.StatusPendingReview, Limit: 9}, 50, 6},
+		{"failed", store.CurveFilter{Verdict: lab.VerdictFail, Limit: 9}, 0, 1},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
@@ -200,7 +200,7 @@ func TestReviewCurve(t *testing.T) {
 	m := mustMethod(t, db, "nitrate-ic")
 	in, curves := runInput(m, baseTime)
 	// Make the nitrite curve fail: only two levels.
-	var kept []store.Standard
+	var kept []lab.Standard
 	for _, s := range in.Standards {
 		if s.Analyte == "nitrate" || s.Level == "L1" || s.Level == "L6" {
 			kept = append(kept, s)
@@ -213,33 +213,33 @@ func TestReviewCurve(t *testing.T) {
 		t.Fatal(err)
 	}
 	passed, failed := created.Curves[0], created.Curves[1]
-	if passed.Verdict != store.VerdictPass || failed.Verdict != store.VerdictFail {
+	if passed.Verdict != lab.VerdictPass || failed.Verdict != lab.VerdictFail {
 		t.Fatalf("fixture verdicts %s and %s, want pass and fail", passed.Verdict, failed.Verdict)
 	}
 
-	rv, err := db.ReviewCurve(ctx, passed.ID, store.DecisionApprove, "", "qa-test")
-	if err != nil || rv.Decision != store.DecisionApprove || rv.At.IsZero() {
+	rv, err := db.ReviewCurve(ctx, passed.ID, lab.DecisionApprove, "", "qa-test")
+	if err != nil || rv.Decision != lab.DecisionApprove || rv.At.IsZero() {
 		t.Fatalf("approve = %+v, %v", rv, err)
 	}
 	got, err := db.GetCurve(ctx, passed.ID)
-	if err != nil || got.Status != store.StatusApproved || got.Review == nil || got.Review.Actor != "qa-test" ||
+	if err != nil || got.Status != lab.StatusApproved || got.Review == nil || got.Review.Actor != "qa-test" ||
 		got.ReviewedBy != "qa-test" || got.ReviewedAt == nil {
 		t.Errorf("approved curve = %+v, review %+v, %v", got.CurveSummary, got.Review, err)
 	}
-	_, err = db.ReviewCurve(ctx, passed.ID, store.DecisionReject, "second thoughts", "qa-other")
+	_, err = db.ReviewCurve(ctx, passed.ID, lab.DecisionReject, "second thoughts", "qa-other")
 	wantKind(t, err, lab.KindConflict)
 
-	_, err = db.ReviewCurve(ctx, failed.ID, store.DecisionApprove, "  ", "qa-test")
+	_, err = db.ReviewCurve(ctx, failed.ID, lab.DecisionApprove, "  ", "qa-test")
 	wantKind(t, err, lab.KindInvalid)
 	if f := err.(*lab.Error).Field; f != "/reason" {
 		t.Errorf("field = %q, want /reason", f)
 	}
 	_, err = db.ReviewCurve(ctx, failed.ID, "maybe", "", "qa-test")
 	wantKind(t, err, lab.KindInvalid)
-	_, err = db.ReviewCurve(ctx, "0190a1b2-0000-7000-8000-000000000000", store.DecisionApprove, "", "qa-test")
+	_, err = db.ReviewCurve(ctx, "0190a1b2-0000-7000-8000-000000000000", lab.DecisionApprove, "", "qa-test")
 	wantKind(t, err, lab.KindNotFound)
 
-	if _, err := db.ReviewCurve(ctx, failed.ID, store.DecisionApprove, "two levels suffice for this screening SOP", "qa-test"); err != nil {
+	if _, err := db.ReviewCurve(ctx, failed.ID, lab.DecisionApprove, "two levels suffice for this screening SOP", "qa-test"); err != nil {
 		t.Errorf("approving a failed curve with a reason: %v", err)
 	}
 
@@ -281,7 +281,7 @@ func TestConcurrentReviewsOneWins(t *testing.T) {
 		go func() {
 			defer wg.Done()
 			<-start
-			decision := []string{store.DecisionApprove, store.DecisionReject}[i%2]
+			decision := []string{lab.DecisionApprove, lab.DecisionReject}[i%2]
 			_, errs[i] = db.ReviewCurve(ctx, created.Curves[0].ID, decision, fmt.Sprintf("reviewer %d", i), fmt.Sprintf("qa-%d", i))
 		}()
 	}

@@ -89,7 +89,7 @@ SELECT run_id, method, method_revision, instrument, analyte, unit, acquired_at F
 		if !errors.Is(err, pgx.ErrNoRows) {
 			return classify("select revision of "+origID, err)
 		}
-		pc, err := prepareCurve(CurveInput{Analyte: analyte, Unit: unit, Report: in.Report})
+		pc, err := prepareCurve(lab.CurveInput{Analyte: analyte, Unit: unit, Report: in.Report})
 		if err != nil {
 			return err
 		}
@@ -121,7 +121,7 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 			return err
 		}
 		if err := writeAudit(ctx, tx, in.Actor, ActionCurveCreate, entityCurve, pc.id, map[string]any{
-			"run_id": runID, "revision_of": origID, "analyte": analyte, "verdict": pc.verdict, "status": StatusPendingReview,
+			"run_id": runID, "revision_of": origID, "analyte": analyte, "verdict": pc.verdict, "status": lab.StatusPendingReview,
 			"model": pc.model, "weighting": pc.weighting, "engine_version": pc.engine,
 		}); err != nil {
 			return err
@@ -155,7 +155,7 @@ WHERE s.run_id = $1 AND s.analyte = $2 ORDER BY s.position`, runID, analyte)
 	if err != nil {
 		return nil, classify("select samples for revision", err)
 	}
-	f := &curveFacts{ID: pc.id, Status: StatusPendingReview, Verdict: pc.verdict, Fitted: pc.scalars.slope != nil, FailedChecks: pc.failed}
+	f := &curveFacts{ID: pc.id, Status: lab.StatusPendingReview, Verdict: pc.verdict, Fitted: pc.scalars.slope != nil, FailedChecks: pc.failed}
 	var (
 		out       []pendingResult
 		position  int

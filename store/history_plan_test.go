@@ -64,12 +64,12 @@ FROM generate_series(1, 100000) g`, created.ID, m.Name, baseTime)
 	}{
 		{"instrument and analyte, page 1", store.CurveFilter{Instrument: "ic-7", Analyte: "nitrite"}, "curves_history"},
 		{"instrument and analyte, deep cursor", store.CurveFilter{Instrument: "ic-7", Analyte: "nitrite", Cursor: deep.NextCursor}, "curves_history"},
-		{"instrument, analyte and status", store.CurveFilter{Instrument: "ic-7", Analyte: "nitrite", Status: store.StatusApproved}, "curves_approved_history"}, // the partial index of migration 000003
+		{"instrument, analyte and status", store.CurveFilter{Instrument: "ic-7", Analyte: "nitrite", Status: lab.StatusApproved}, "curves_approved_history"}, // the partial index of migration 000003
 		{"instrument, analyte and window", store.CurveFilter{Instrument: "ic-7", Analyte: "nitrite",
 			From: baseTime.Add(-30 * 24 * time.Hour), To: baseTime.Add(-20 * 24 * time.Hour)}, "curves_history"},
 		{"everything, page 1", store.CurveFilter{}, "curves_recent"},
 		{"everything, deep cursor", store.CurveFilter{Cursor: deepAll.NextCursor}, "curves_recent"},
-		{"review queue", store.CurveFilter{Status: store.StatusPendingReview}, "curves_pending"},
+		{"review queue", store.CurveFilter{Status: lab.StatusPendingReview}, "curves_pending"},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {

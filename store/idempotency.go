@@ -36,7 +36,7 @@ type rowQuerier interface {
 // storedRun returns the response stored under (tokenID, key) with Replayed
 // set: KindNotFound when the key is unused, KindInvalid when it was used with
 // another request hash.
-func storedRun(ctx context.Context, q rowQuerier, tokenID, key string, requestHash []byte) (*RunCreated, error) {
+func storedRun(ctx context.Context, q rowQuerier, tokenID, key string, requestHash []byte) (*lab.RunCreated, error) {
 	return decodeStoredRun(q.QueryRow(ctx, sqlSelectKey, tokenID, key), requestHash)
 }
 
@@ -44,7 +44,7 @@ func storedRun(ctx context.Context, q rowQuerier, tokenID, key string, requestHa
 // can answer a retry without fitting again: KindNotFound when the key is
 // unused, KindInvalid when it was used with a different request hash.
 // CreateRun makes the same decision race-free; this is only a shortcut.
-func (db *DB) LookupIdempotency(ctx context.Context, tokenID, key string, requestHash []byte) (*RunCreated, error) {
+func (db *DB) LookupIdempotency(ctx context.Context, tokenID, key string, requestHash []byte) (*lab.RunCreated, error) {
 	tokenID, err := parseID("token", tokenID)
 	if err != nil {
 		return nil, err

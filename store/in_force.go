@@ -49,7 +49,7 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 		}
 		type candidate struct {
 			c  CurveSummary
-			qc QCPolicy
+			qc lab.QCPolicy
 		}
 		cands, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (candidate, error) {
 			var raw []byte
@@ -57,11 +57,11 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 			if err != nil {
 				return candidate{}, err
 			}
-			var qc QCPolicy
+			var qc lab.QCPolicy
 			if err := json.Unmarshal(raw, &qc); err != nil {
 				return candidate{}, fmt.Errorf("decode qc: %w", err)
 			}
-			return candidate{c, qc.withDefaults()}, nil
+			return candidate{c, qc.WithDefaults()}, nil
 		})
 		if err != nil {
 			return classify("scan candidate curves", err)
@@ -71,13 +71,13 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 			c := k.c
 			var basis string
 			switch {
-			case c.Status == StatusApproved:
+			case c.Status == lab.StatusApproved:
 				basis = fmt.Sprintf("curve %s, acquired %s, is the newest current curve approved for %s on %s at that moment (approved by %s)",
 					c.ID, stamp(c.AcquiredAt), analyte, instrument, c.ReviewedBy)
-			case c.Status == StatusPendingReview && c.Verdict == VerdictPass && c.Slope != nil && k.qc.PendingCurvesInForce:
+			case c.Status == lab.StatusPendingReview && c.Verdict == lab.VerdictPass && c.Slope != nil && k.qc.PendingCurvesInForce:
 				basis = fmt.Sprintf("curve %s, acquired %s, passed its checks and awaits review; method %s revision %d lets such a curve be in force",
 					c.ID, stamp(c.AcquiredAt), c.Method, c.MethodRevision)
-			case c.Status == StatusPendingReview && c.Verdict == VerdictPass:
+			case c.Status == lab.StatusPendingReview && c.Verdict == lab.VerdictPass:
 				skipped = append(skipped, fmt.Sprintf("curve %s (acquired %s) awaits review and method %s revision %d keeps pending curves out of force", c.ID, stamp(c.AcquiredAt), c.Method, c.MethodRevision))
 				continue
 			default:

@@ -10,7 +10,6 @@ import (
 
 	"curvekeeper/calib"
 	"curvekeeper/lab"
-	"curvekeeper/store"
 )
 
 func TestCreateMethodRevisions(t *testing.T) {
@@ -115,16 +114,16 @@ func TestCreateMethodRefusesBadInput(t *testing.T) {
 	db := newDB(t)
 	tests := []struct {
 		name   string
-		change func(*store.MethodInput)
+		change func(*lab.MethodInput)
 		field  string
 	}{
-		{"empty name", func(m *store.MethodInput) { m.Name = "" }, "/name"},
-		{"unknown model", func(m *store.MethodInput) { m.Model = "cubic" }, "/model"},
-		{"unknown weighting", func(m *store.MethodInput) { m.Weighting = "1/z" }, "/weighting"},
-		{"confidence 1", func(m *store.MethodInput) { m.Confidence = 1 }, "/confidence"},
-		{"no analytes", func(m *store.MethodInput) { m.Analytes = nil }, "/analytes"},
-		{"analyte twice", func(m *store.MethodInput) { m.Analytes[1].Name = m.Analytes[0].Name }, "/analytes/1/name"},
-		{"no unit", func(m *store.MethodInput) { m.Analytes[0].Unit = "" }, "/analytes/0/unit"},
+		{"empty name", func(m *lab.MethodInput) { m.Name = "" }, "/name"},
+		{"unknown model", func(m *lab.MethodInput) { m.Model = "cubic" }, "/model"},
+		{"unknown weighting", func(m *lab.MethodInput) { m.Weighting = "1/z" }, "/weighting"},
+		{"confidence 1", func(m *lab.MethodInput) { m.Confidence = 1 }, "/confidence"},
+		{"no analytes", func(m *lab.MethodInput) { m.Analytes = nil }, "/analytes"},
+		{"analyte twice", func(m *lab.MethodInput) { m.Analytes[1].Name = m.Analytes[0].Name }, "/analytes/1/name"},
+		{"no unit", func(m *lab.MethodInput) { m.Analytes[0].Unit = "" }, "/analytes/0/unit"},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {

@@ -66,13 +66,13 @@ func releaseOf(f *curveFacts, acquiredAt time.Time) (state, reason string) {
 		return ReleaseWithheld, fmt.Sprintf("curve %s was superseded by its revision %s (standards excluded); this sample's current result is the one against the revision", f.ID, f.SupersededBy)
 	case !f.Fitted:
 		return ReleaseWithheld, fmt.Sprintf("curve %s could not be fitted, so no concentration can be released", f.ID)
-	case f.Status == StatusRejected:
+	case f.Status == lab.StatusRejected:
 		r := fmt.Sprintf("curve %s was rejected in review by %s", f.ID, f.ReviewedBy)
 		if f.ReviewReason != "" {
 			r += ": " + f.ReviewReason
 		}
 		return ReleaseWithheld, r
-	case f.Verdict == VerdictFail && f.Status != StatusApproved:
+	case f.Verdict == lab.VerdictFail && f.Status != lab.StatusApproved:
 		return ReleaseWithheld, fmt.Sprintf("curve %s failed its acceptance checks (%s) and has not been approved", f.ID, strings.Join(f.FailedChecks, ", "))
 	}
 	var last *verificationFact
@@ -90,11 +90,11 @@ func releaseOf(f *curveFacts, acquiredAt time.Time) (state, reason string) {
 		return ReleaseWithheld, fmt.Sprintf("the %s calibration verification %s at %s failed (%s, limit ±%s %%); results acquired after it are withheld until a passing verification or a new curve",
 			last.Kind, last.ID, last.At.UTC().Format(time.RFC3339), d, strconv.FormatFloat(last.LimitPct, 'g', -1, 64))
 	}
-	if f.Status == StatusPendingReview {
+	if f.Status == lab.StatusPendingReview {
 		return ReleaseProvisional, fmt.Sprintf("curve %s awaits review by a qualified person", f.ID)
 	}
 	r := fmt.Sprintf("curve %s was approved by %s", f.ID, f.ReviewedBy)
-	if f.Verdict == VerdictFail {
+	if f.Verdict == lab.VerdictFail {
 		r += " despite failed checks (" + strings.Join(f.FailedChecks, ", ") + "), with the reason: " + f.ReviewReason
 	}
 	if last != nil {

@@ -7,6 +7,7 @@ import (
 	"testing"
 	"time"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -113,7 +114,7 @@ func TestResultFeedConcurrentWriters(t *testing.T) {
 			for r := 0; r < rounds; r++ {
 				run := runIDs[(w+r)%runs]
 				at := baseTime.Add(time.Duration((w+r)%runs)*time.Hour + time.Duration(10+r)*time.Minute)
-				samples := []store.Sample{
+				samples := []lab.Sample{
 					{ID: fmt.Sprintf("W%d-R%d-a", w, r), Analyte: "nitrate", Responses: []float64{4.5}, AcquiredAt: &at},
 					{ID: fmt.Sprintf("W%d-R%d-b", w, r), Analyte: "nitrite", Responses: []float64{1.2, 1.3}, Dilution: 5, AcquiredAt: &at},
 				}
@@ -127,7 +128,7 @@ func TestResultFeedConcurrentWriters(t *testing.T) {
 	go func() { // a reviewer approves every curve meanwhile: state_changed events
 		defer wg.Done()
 		for _, id := range curveIDs {
-			if _, err := db.ReviewCurve(ctx, id, store.DecisionApprove, "", "token:qa"); err != nil {
+			if _, err := db.ReviewCurve(ctx, id, lab.DecisionApprove, "", "token:qa"); err != nil {
 				t.Errorf("ReviewCurve: %v", err)
 			}
 		}
@@ -219,7 +220,7 @@ FROM sample_results ORDER BY id LIMIT 1 RETURNING seq`).Scan(&seqA)
 	bDone := make(chan error, 1)
 	go func() {
 		at := baseTime.Add(time.Hour)
-		_, err := db.AddSamples(ctx, created.ID, []store.Sample{{ID: "WS-0100", Analyte: "nitrate", Responses: []float64{3}, AcquiredAt: &at}}, "token:instrument")
+		_, err := db.AddSamples(ctx, created.ID, []lab.Sample{{ID: "WS-0100", Analyte: "nitrate", Responses: []float64{3}, AcquiredAt: &at}}, "token:instrument")
 		bDone <- err
 	}()
 	waiting := false

@@ -11,6 +11,8 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // Writing a run costs the database far more per statement and per round
@@ -61,7 +63,7 @@ type runWrites struct {
 // outcome: nil (stored), errWriteAlone, or the caller's context error.
 type runWrite struct {
 	ctx     context.Context
-	in      *RunInput
+	in      *lab.RunInput
 	runID   string
 	payload []byte // runs.payload
 	body    []byte // the 201 body kept with the idempotency key

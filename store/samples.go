@@ -5,7 +5,6 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"strings"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -59,29 +58,6 @@ WHERE c.run_id = $1 AND NOT EXISTS (SELECT 1 FROM exclusions e WHERE e.revision_
 	return out, nil
 }
 
-// checkSample refuses a sample the schema would refuse; p is its pointer.
-func checkSample(s *Sample, p string) error {
-	if s.Dilution == 0 {
-		s.Dilution = 1
-	}
-	switch {
-	case strings.TrimSpace(s.ID) == "" || len(s.ID) > 200:
-		return lab.FieldError(p+"/id", "sample id must be 1 to 200 characters")
-	case strings.TrimSpace(s.Analyte) == "":
-		return lab.FieldError(p+"/analyte", "analyte is required")
-	case len(s.Responses) == 0:
-		return lab.FieldError(p+"/responses", "at least one response is required")
-	case !finite(s.Dilution) || s.Dilution <= 0:
-		return lab.FieldError(p+"/dilution", "dilution must be a finite number > 0")
-	}
-	for k, r := range s.Responses {
-		if !finite(r) {
-			return lab.FieldError(fmt.Sprintf("%s/responses/%d", p, k), "response must be a finite number")
-		}
-	}
-	return nil
-}
-
 // AddSamples stores samples measured after run id was posted and quantifies
 // each against the current curve of its analyte in the run, in one
 // transaction with their results, their created events and the audit row.
@@ -89,7 +65,7 @@ func checkSample(s *Sample, p string) error {
 // naming the field): the run has a curve for the analyte; a sample id
 // appears once per analyte in the run (with the earlier samples); a sample
 // was not acquired before the run's standards.
-func (db *DB) AddSamples(ctx context.Context, runID string, samples []Sample, actor string) ([]Result, error) {
+func (db *DB) AddSamples(ctx context.Context, runID string, samples []lab.Sample, actor string) ([]Result, error) {
 	runID, err := parseID("run", runID)
 	if err != nil {
 		return nil, err
@@ -98,10 +74,10 @@ func (db *DB) AddSamples(ctx context.Context, runID string, samples []Sample, ac
 		return nil, lab.FieldError("/samples", "at least one sample is required")
 	}
 	now := time.Now().UTC()
-	in := make([]Sample, len(samples))
+	in := make([]lab.Sample, len(samples))
 	for i, s := range samples {
 		in[i] = s
-		if err := checkSample(&in[i], fmt.Sprintf("/samples/%d", i)); err != nil {
+		if err := lab.CheckSample(&in[i], fmt.Sprintf("/samples/%d", i)); err != nil {
 			return nil, err
 		}
 		if in[i].AcquiredAt == nil {

@@ -29,9 +29,9 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 	}
 	// Approve the first three, reject the fourth, leave the fifth pending.
 	for i, id := range nitrate[:4] {
-		d := store.DecisionApprove
+		d := lab.DecisionApprove
 		if i == 3 {
-			d = store.DecisionReject
+			d = lab.DecisionReject
 		}
 		if _, err := db.ReviewCurve(ctx, id, d, "test", "qa-test"); err != nil {
 			t.Fatal(err)
@@ -53,7 +53,7 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 				t.Errorf("slope of curve %d = %v, %v", i, v, ok)
 			}
 		}
-		if got[3].Status != store.StatusRejected || got[4].Status != store.StatusPendingReview {
+		if got[3].Status != lab.StatusRejected || got[4].Status != lab.StatusPendingReview {
 			t.Errorf("statuses %s, %s", got[3].Status, got[4].Status)
 		}
 	})
@@ -88,7 +88,7 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 	})
 	t.Run("ReadForRun reads the method and the same slopes in one batch", func(t *testing.T) {
 		before := baseTime.Add(10 * 24 * time.Hour)
-		got, err := db.ReadForRun(ctx, store.RunReadsQuery{Method: m.Name, Instrument: "ic-02",
+		got, err := db.ReadForRun(ctx, lab.RunReadsQuery{Method: m.Name, Instrument: "ic-02",
 			Analytes: []string{"nitrate", "nitrate", "sulfate"}, Before: before, Limit: 2})
 		if err != nil {
 			t.Fatal(err)
@@ -105,9 +105,9 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 				t.Errorf("slopes of %s = %v, want RecentApprovedSlopes' %v", a, g, want)
 			}
 		}
-		_, err = db.ReadForRun(ctx, store.RunReadsQuery{Method: "no-such-method", Instrument: "ic-02", Before: before, Limit: 2})
+		_, err = db.ReadForRun(ctx, lab.RunReadsQuery{Method: "no-such-method", Instrument: "ic-02", Before: before, Limit: 2})
 		wantKind(t, err, lab.KindNotFound)
-		_, err = db.ReadForRun(ctx, store.RunReadsQuery{Method: m.Name, Instrument: "ic-02", Before: before, Limit: 0})
+		_, err = db.ReadForRun(ctx, lab.RunReadsQuery{Method: m.Name, Instrument: "ic-02", Before: before, Limit: 0})
 		wantKind(t, err, lab.KindInvalid)
 	})
 }

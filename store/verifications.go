@@ -110,7 +110,7 @@ WHERE c.id = $1 FOR UPDATE OF c`, curveID).Scan(&status, &verdict, &acquired, &r
 			return classify("select revision of curve "+curveID, err)
 		}
 		switch {
-		case status == StatusRejected:
+		case status == lab.StatusRejected:
 			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s was rejected in review; a rejected curve quantifies nothing, so it cannot be verified (calibrate again)", RuleCurveNotRejected, curveID)
 		case revision != nil:
 			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s was superseded by its revision %s; verify against the revision", RuleCurveIsCurrent, curveID, *revision)
@@ -124,11 +124,11 @@ WHERE c.id = $1 FOR UPDATE OF c`, curveID).Scan(&status, &verdict, &acquired, &r
 		if len(rep.Coefficients) == 0 {
 			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s could not be fitted, so nothing can be read back from it", RuleCurveHasFit, curveID)
 		}
-		var qc QCPolicy
+		var qc lab.QCPolicy
 		if err := json.Unmarshal(qcRaw, &qc); err != nil {
 			return fmt.Errorf("store: decode qc of the method of curve %s: %w", curveID, err)
 		}
-		qc = qc.withDefaults()
+		qc = qc.WithDefaults()
 		res, err := rep.Verify(in.Responses, in.Concentration, qc.VerificationTolerancePct)
 		if err != nil {
 			var ie *calib.InputError

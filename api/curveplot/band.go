@@ -64,7 +64,7 @@ func newCurve(r *calib.Report) (c curve, ok bool, err error) {
 			Reason: fmt.Sprintf("model %s has %d coefficients, report has %d", r.Model, p, len(r.Coefficients))}
 	}
 	for _, b := range r.Coefficients {
-		if !finite(b) {
+		if !calib.Finite(b) {
 			return c, false, nil
 		}
 	}
@@ -84,7 +84,7 @@ func covUsable(cov [][]float64, p int) bool {
 			return false
 		}
 		for _, v := range row {
-			if !finite(v) {
+			if !calib.Finite(v) {
 				return false
 			}
 		}
@@ -136,5 +136,5 @@ func (c curve) halfWidth(x float64) (float64, bool) {
 		return 0, false
 	}
 	h := c.t * math.Sqrt(meanVariance(c.model, c.cov, x))
-	return h, finite(h)
+	return h, calib.Finite(h)
 }
