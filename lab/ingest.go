@@ -64,12 +64,11 @@ func runAnalytes(standards []Standard) []string {
 // fitRun checks the run against its method and fits one curve per analyte
 // (CPU work, done before the transaction opens).
 func fitRun(m *Method, in *RunInput) ([]CurveInput, error) {
-	type levelKey struct{ analyte, level string }
 	type concKey struct {
 		analyte string
 		conc    float64
 	}
-	seen := map[levelKey]bool{}
+	seen := levels{}
 	concAt := map[concKey]string{} // level label holding each concentration
 	var order []string
 	points := map[string][]calib.Point{}
@@ -78,11 +77,9 @@ func fitRun(m *Method, in *RunInput) ([]CurveInput, error) {
 		if _, ok := m.Analyte(a); !ok {
 			return nil, FieldError(Pointer("standards", i, "analyte"), "method %s does not list the analyte %q", m.Name, a)
 		}
-		k := levelKey{a, st.Level}
-		if seen[k] {
-			return nil, FieldError(Pointer("standards", i, "level"), "level %q of %s appears twice; send replicates as several responses of one standard", st.Level, a)
+		if err := seen.add(i, st); err != nil {
+			return nil, err
 		}
-		seen[k] = true
 		ck := concKey{a, st.Concentration}
 		if other, dup := concAt[ck]; dup {
 			return nil, FieldError(Pointer("standards", i, "concentration"), "levels %q and %q of %s share the concentration %v; send replicates as several responses of one standard", other, st.Level, a, st.Concentration)

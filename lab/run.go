@@ -104,8 +104,7 @@ func CheckRun(in *RunInput, curves []CurveInput) error {
 			return Errorf(KindInvalid, "an Idempotency-Key needs the token id it is scoped to")
 		}
 	}
-	type levelKey struct{ analyte, level string }
-	seen := map[levelKey]int{}
+	seen := levels{}
 	for i, s := range in.Standards {
 		p := fmt.Sprintf("/standards/%d", i)
 		switch {
@@ -118,10 +117,9 @@ func CheckRun(in *RunInput, curves []CurveInput) error {
 		case len(s.Responses) == 0:
 			return FieldError(p+"/responses", "at least one response is required")
 		}
-		if j, dup := seen[levelKey{s.Analyte, s.Level}]; dup {
-			return FieldError(p+"/level", "level %q of analyte %q is given twice (also /standards/%d)", s.Level, s.Analyte, j)
+		if err := seen.add(i, s); err != nil {
+			return err
 		}
-		seen[levelKey{s.Analyte, s.Level}] = i
 		for k, r := range s.Responses {
 			if !calib.Finite(r) {
 				return FieldError(fmt.Sprintf("%s/responses/%d", p, k), "response must be a finite number")
@@ -239,3 +237,18 @@ const (
 	DecisionApprove = "approve"
 	DecisionReject  = "reject"
 )
+
+// levels holds the levels of a run seen so far, for the rule that a level
+// appears once per analyte: replicates are several responses of one
+// standard.
+type levels map[[2]string]bool
+
+// add records standard i, or refuses it when its level was seen before.
+func (l levels) add(i int, st Standard) error {
+	k := [2]string{st.Analyte, st.Level}
+	if l[k] {
+		return FieldError(Pointer("standards", i, "level"), "level %q of %s appears twice; send replicates as several responses of one standard", st.Level, st.Analyte)
+	}
+	l[k] = true
+	return nil
+}
