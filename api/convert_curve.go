@@ -40,6 +40,17 @@ func curveOut(c *store.Curve) oapi.Curve {
 		Points:             make([]oapi.CurvePoint, 0, len(r.Points)),
 		Checks:             make([]oapi.Check, 0, len(r.Checks)),
 		WeightCandidates:   make([]oapi.WeightCandidate, 0, len(r.WeightCandidates)),
+		Flags:              make([]oapi.FitFlag, 0, len(r.Flags)),
+	}
+	for _, f := range r.Flags {
+		out.Flags = append(out.Flags, oapi.FitFlag(f))
+	}
+	if r.WeightingAdvised != "" {
+		adv := oapi.Weighting(r.WeightingAdvised)
+		out.WeightingAdvised = &adv
+	}
+	if fitted && r.HeaviestLevel.Share > 0 {
+		out.HeaviestLevel = &oapi.LevelShare{Concentration: r.HeaviestLevel.X, Share: r.HeaviestLevel.Share}
 	}
 	if len(r.Cautions) > 0 {
 		out.Cautions = r.Cautions
@@ -84,6 +95,10 @@ func curveOut(c *store.Curve) oapi.Curve {
 		out.Limits = oapi.Limits{Lod: num(r.Limits.LOD), Loq: num(r.Limits.LOQ),
 			CriticalValue: num(r.Limits.CriticalValue), CriticalConcentration: num(r.Limits.CriticalConc),
 			DetectionLimit: num(r.Limits.DetectionLimit), Detail: r.Limits.Detail}
+		if r.Limits.SigmaBasis != "" {
+			basis := oapi.SigmaBasis(r.Limits.SigmaBasis)
+			out.Limits.SigmaBasis, out.Limits.Sigma = &basis, num(r.Limits.Sigma)
+		}
 	} else {
 		out.Limits = oapi.Limits{Detail: r.Limits.Detail}
 	}
@@ -91,9 +106,13 @@ func curveOut(c *store.Curve) oapi.Curve {
 		out.Range = oapi.Range{Low: num(r.Range.Low), High: num(r.Range.High)}
 	}
 	for _, wc := range r.WeightCandidates {
-		o := oapi.WeightCandidate{Weighting: oapi.Weighting(wc.Weighting), Chosen: wc.Chosen, Note: wc.Note}
-		if wc.Note == "" || wc.Chosen {
+		o := oapi.WeightCandidate{Weighting: oapi.Weighting(wc.Weighting), Chosen: wc.Chosen, Advised: wc.Advised, Note: wc.Note}
+		// calib/1.0.0 reports carry no Scored: a candidate without a note was scored.
+		if wc.Scored || (r.Engine == "calib/1.0.0" && (wc.Note == "" || wc.Chosen)) {
 			o.SumAbsRe = num(wc.SumAbsRE)
+		}
+		if wc.Scored {
+			o.MaxLevelWeightShare = num(wc.MaxLevelShare)
 		}
 		out.WeightCandidates = append(out.WeightCandidates, o)
 	}

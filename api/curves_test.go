@@ -22,7 +22,7 @@ import (
 
 // checkNames are the check names of issue 4 and the spec, in report order.
 var checkNames = []string{"min_levels", "mandel", "lack_of_fit", "homoscedasticity", "back_calculation",
-	"r_squared", "relative_standard_error", "intercept", "residual_runs", "outliers"}
+	"r_squared", "relative_standard_error", "intercept", "residual_runs", "outliers", "monotonic"}
 
 func TestGetCurve(t *testing.T) {
 	t.Parallel()

@@ -24,6 +24,14 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 		Description: deref(b.Description),
 		QC:          qcFrom(b),
 	}
+	if o := b.WeightingOptions; o != nil {
+		if o.MinReplicates != nil {
+			in.Weights.MinReplicates = *o.MinReplicates
+		}
+		if o.LimitSigma != nil {
+			in.Weights.LimitSigma = calib.SigmaBasis(*o.LimitSigma)
+		}
+	}
 	if b.Confidence != nil {
 		in.Confidence = float64(*b.Confidence)
 	}
@@ -140,10 +148,12 @@ func methodOut(m *lab.Method) oapi.Method {
 		mandatory = append(mandatory, oapi.CheckName(c))
 	}
 	out := oapi.Method{
-		Name:        m.Name,
-		Revision:    m.Revision,
-		Model:       oapi.Model(m.Model),
-		Weighting:   oapi.Weighting(m.Weighting),
+		Name:      m.Name,
+		Revision:  m.Revision,
+		Model:     oapi.Model(m.Model),
+		Weighting: oapi.Weighting(m.Weighting),
+		WeightingOptions: oapi.WeightingOptions{MinReplicates: m.Weights.MinReplicates,
+			LimitSigma: oapi.SigmaBasis(m.Weights.LimitSigma)},
 		Confidence:  m.Confidence,
 		CreatedAt:   m.CreatedAt,
 		CreatedBy:   m.CreatedBy,

@@ -147,7 +147,7 @@ func predictionOut(id string, p calib.Prediction) oapi.PredictionResult {
 		Dilution: p.Dilution, IntervalMethod: p.Method,
 		Interval: oapi.Interval{Level: p.Interval.Level, Bounded: p.Interval.Bounded},
 	}
-	if !hasFlag(p.Flags, calib.FlagNoRoot) {
+	if p.HasEstimate() {
 		res.Concentration = num(p.Concentration)
 		res.StandardError = num(p.StandardError)
 	}
@@ -155,15 +155,6 @@ func predictionOut(id string, p calib.Prediction) oapi.PredictionResult {
 		res.Interval.Low, res.Interval.High = num(p.Interval.Low), num(p.Interval.High)
 	}
 	return res
-}
-
-func hasFlag(flags []string, f string) bool {
-	for _, x := range flags {
-		if x == f {
-			return true
-		}
-	}
-	return false
 }
 
 // ReviewCurve approves or rejects a curve awaiting review, once.

@@ -96,3 +96,57 @@ func TestMethodDescriptionKept(t *testing.T) {
 		t.Errorf("changed description: %+v, want revision 2 with the new text", m2)
 	}
 }
+
+// TestMethodWeightingOptions: a method fixes 1/x^0.5 (Almeida et al.,
+// J. Chromatogr. B 774 (2002) 215) with its weighting options; its curves
+// carry auto's candidate table with the advised scheme, the heaviest level,
+// the fit flags and the σ basis of the limits the method chose (ICH Q2(R2)
+// lets σ be the residual SD), each checked against the spec.
+func TestMethodWeightingOptions(t *testing.T) {
+	t.Parallel()
+	e := newEnv(t)
+	def := decode[oapi.Method](t, e.postJSON(t, e.admin, "/v1/methods", map[string]any{"name": "nitrate-def",
+		"model": "linear", "weighting": "auto", "analytes": []map[string]any{{"name": "nitrate", "unit": "mg/L"}}}), http.StatusCreated)
+	if d := calib.DefaultWeightOptions(); def.WeightingOptions.MinReplicates != d.MinReplicates ||
+		string(def.WeightingOptions.LimitSigma) != string(d.LimitSigma) {
+		t.Errorf("defaults %+v, want %+v", def.WeightingOptions, d)
+	}
+	body := map[string]any{"name": "nitrate-fixed", "model": "linear", "weighting": "1/x^0.5",
+		"weighting_options": map[string]any{"min_replicates": 2, "limit_sigma": "residual_sd"},
+		"analytes":          []map[string]any{{"name": "nitrate", "unit": "mg/L"}}}
+	m := decode[oapi.Method](t, e.postJSON(t, e.admin, "/v1/methods", body), http.StatusCreated)
+	if m.Weighting != "1/x^0.5" || m.WeightingOptions.MinReplicates != 2 || m.WeightingOptions.LimitSigma != "residual_sd" {
+		t.Errorf("method %+v", m)
+	}
+	run := e.run(t, e.admin, runBody("nitrate-fixed", "photometer-7", baseTime, standards("nitrate", 1)))
+	c := decode[oapi.Curve](t, e.get(t, e.admin, "/v1/curves/"+run.Curves[0].ID.String()), http.StatusOK)
+	if c.Weighting != "1/x^0.5" || c.WeightingAdvised == nil || len(c.WeightCandidates) != 8 || c.HeaviestLevel == nil {
+		t.Fatalf("curve weighting %s, advised %v, %d candidates, heaviest %v", c.Weighting, c.WeightingAdvised, len(c.WeightCandidates), c.HeaviestLevel)
+	}
+	chosen, advised := 0, 0
+	for _, wc := range c.WeightCandidates {
+		if wc.Chosen {
+			chosen++
+		}
+		if wc.Advised {
+			advised++
+			if wc.Weighting != *c.WeightingAdvised {
+				t.Errorf("advised candidate %s, curve says %s", wc.Weighting, *c.WeightingAdvised)
+			}
+		}
+		// Duplicates meet the method's minimum of 2: 1/s² is scored.
+		if wc.Weighting == "1/s^2" && wc.SumAbsRe == nil {
+			t.Errorf("1/s^2 not scored with min_replicates 2: %+v", wc)
+		}
+	}
+	if chosen != 1 || advised != 1 {
+		t.Errorf("%d chosen, %d advised", chosen, advised)
+	}
+	if c.Limits.SigmaBasis == nil || *c.Limits.SigmaBasis != "residual_sd" || c.Limits.Sigma == nil || *c.Limits.Sigma != *c.ResidualSd {
+		t.Errorf("limits %+v, residual SD %v", c.Limits, c.ResidualSd)
+	}
+	body["weighting_options"] = map[string]any{"min_replicates": 1}
+	wantProblem(t, e.postJSON(t, e.admin, "/v1/methods", body), http.StatusBadRequest, "/weighting_options/min_replicates")
+	body["weighting_options"] = map[string]any{"limit_sigma": "intercept_sd"}
+	wantProblem(t, e.postJSON(t, e.admin, "/v1/methods", body), http.StatusBadRequest, "/weighting_options/limit_sigma")
+}

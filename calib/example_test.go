@@ -40,6 +40,7 @@ func ExampleFit() {
 	// mandel passed=true
 	// back_calculation passed=true
 	// r_squared passed=true
+	// monotonic passed=true
 }
 
 // Predict an unknown read twice, diluted 1:10, with its Fieller interval.
@@ -62,7 +63,10 @@ func ExampleReport_Predict() {
 	// true
 }
 
-// Automatic weighting reports every candidate's score.
+// Automatic weighting reports every candidate's score and the largest share
+// of the total weight any one level would hold under it; a candidate giving
+// one level more than half is passed over, and 1/s² needs three readings per
+// level by default.
 func ExampleFit_autoWeighting() {
 	rep, err := calib.Fit(nitrate, calib.Options{Model: calib.Linear, Weighting: calib.WeightAuto})
 	if err != nil {
@@ -70,15 +74,21 @@ func ExampleFit_autoWeighting() {
 		return
 	}
 	for _, c := range rep.WeightCandidates {
-		fmt.Printf("%-5s Σ|%%RE| = %6.2f chosen=%v\n", c.Weighting, c.SumAbsRE, c.Chosen)
+		if !c.Scored {
+			fmt.Printf("%-7s skipped\n", c.Weighting)
+			continue
+		}
+		fmt.Printf("%-7s Σ|%%RE| = %6.2f heaviest level %3.0f %% chosen=%v\n", c.Weighting, c.SumAbsRE, 100*c.MaxLevelShare, c.Chosen)
 	}
 	// Output:
-	// none  Σ|%RE| =  26.94 chosen=false
-	// 1/x   Σ|%RE| =  26.95 chosen=false
-	// 1/x^2 Σ|%RE| =  26.95 chosen=false
-	// 1/y   Σ|%RE| =  26.95 chosen=false
-	// 1/y^2 Σ|%RE| =  26.95 chosen=false
-	// 1/s^2 Σ|%RE| =  26.92 chosen=true
+	// none    Σ|%RE| =  26.94 heaviest level  12 % chosen=true
+	// 1/x^0.5 Σ|%RE| =  26.94 heaviest level  33 % chosen=false
+	// 1/x     Σ|%RE| =  26.95 heaviest level  52 % chosen=false
+	// 1/x^2   Σ|%RE| =  26.95 heaviest level  75 % chosen=false
+	// 1/y^0.5 Σ|%RE| =  26.95 heaviest level  29 % chosen=false
+	// 1/y     Σ|%RE| =  26.95 heaviest level  45 % chosen=false
+	// 1/y^2   Σ|%RE| =  26.95 heaviest level  66 % chosen=false
+	// 1/s^2   skipped
 }
 
 // A run that cannot be fitted still gets a report to store as evidence.
@@ -99,5 +109,5 @@ func ExampleDefaultPolicy() {
 	p := calib.DefaultPolicy()
 	fmt.Println(p.MinLevels, p.BackCalcTolerancePct, p.BackCalcLowTolerancePct, p.MinRSquared, p.Mandatory)
 	// Output:
-	// 6 15 20 0.99 [min_levels back_calculation r_squared mandel]
+	// 6 15 20 0.99 [min_levels back_calculation r_squared mandel monotonic]
 }

@@ -81,14 +81,22 @@ func Fit(points []Point, opt Options) (*Report, error) {
 	if err != nil {
 		return nil, err
 	}
-	if opt.Weighting == WeightAuto {
-		return fitAuto(points, d, opt)
+	scores, advised := scoreCandidates(d, opt)
+	scheme := opt.Weighting
+	if scheme == WeightAuto {
+		if advised < 0 {
+			return nil, inputErr("options.weighting", "auto: no candidate weighting could be fitted")
+		}
+		scheme = scores[advised].Weighting
 	}
-	wp, raw, err := planWeightsInto(opt.Weighting, d, d.take(len(d.x)))
+	wp, raw, err := planWeightsInto(scheme, d, d.take(len(d.x)), opt.Weights.MinReplicates)
 	if err != nil {
 		return nil, err
 	}
-	return build(points, d, opt, wp, raw, raw, nil)
+	for i := range scores {
+		scores[i].Chosen = scores[i].Weighting == scheme
+	}
+	return build(points, d, opt, wp, raw, raw, scores)
 }
 
 // fitWeights fits with caller-supplied raw weights of any positive scale,
@@ -112,7 +120,7 @@ func fitWeights(points []Point, opt Options, raw []float64) (*Report, error) {
 			return nil, inputErr("weights["+strconv.Itoa(i)+"]", "weight must be a finite number > 0, got %v", w)
 		}
 	}
-	wp, planRaw, err := planWeightsInto(opt.Weighting, d, d.take(len(d.x)))
+	wp, planRaw, err := planWeightsInto(opt.Weighting, d, d.take(len(d.x)), opt.Weights.MinReplicates)
 	if err != nil {
 		return nil, err
 	}
@@ -131,9 +139,23 @@ func resolveOptions(opt Options) (Options, error) {
 	switch opt.Weighting {
 	case "":
 		opt.Weighting = WeightNone
-	case WeightNone, WeightInvX, WeightInvX2, WeightInvY, WeightInvY2, WeightInvS2, WeightAuto:
 	default:
-		return opt, inputErr("options.weighting", "unknown weighting %q", opt.Weighting)
+		if !slices.Contains(Weightings(), opt.Weighting) {
+			return opt, inputErr("options.weighting", "unknown weighting %q", opt.Weighting)
+		}
+	}
+	def := DefaultWeightOptions()
+	if opt.Weights.MinReplicates == 0 {
+		opt.Weights.MinReplicates = def.MinReplicates
+	}
+	if opt.Weights.MinReplicates < 2 {
+		return opt, inputErr("options.weights.min_replicates", "must be at least 2 (an SD needs two readings), got %d", opt.Weights.MinReplicates)
+	}
+	if opt.Weights.LimitSigma == "" {
+		opt.Weights.LimitSigma = def.LimitSigma
+	}
+	if !slices.Contains(SigmaBases(), opt.Weights.LimitSigma) {
+		return opt, inputErr("options.weights.limit_sigma", "unknown σ basis %q", opt.Weights.LimitSigma)
 	}
 	if opt.Confidence == 0 {
 		opt.Confidence = 0.95
@@ -328,33 +350,45 @@ func (d *dataset) groupLevels() {
 	}
 }
 
-// fitAuto fits every candidate scheme and keeps the one with the smallest
-// Σ|%RE| of the back-calculated standards (Almeida et al., J. Chromatogr. B
-// 774 (2002) 215). Candidates: none, 1/x, 1/x², 1/y, 1/y², and 1/s² only
-// when every level has replicates. Ties keep the earlier (simpler) scheme.
-// Standards at nominal zero carry no %RE and do not count.
-func fitAuto(points []Point, d *dataset, opt Options) (*Report, error) {
-	cands := []Weighting{WeightNone, WeightInvX, WeightInvX2, WeightInvY, WeightInvY2, WeightInvS2}
-	scores := make([]WeightScore, 0, len(cands))
-	best := -1
-	var bestPlan weightPlan
-	var bestRaw []float64
-	for _, c := range cands {
+// autoCandidates are the schemes auto compares, simplest first within each
+// family (ties keep the earlier one).
+var autoCandidates = [...]Weighting{WeightNone, WeightInvSqrtX, WeightInvX, WeightInvX2,
+	WeightInvSqrtY, WeightInvY, WeightInvY2, WeightInvS2}
+
+// scoreCandidates fits every candidate scheme and scores it by the Σ|%RE| of
+// the back-calculated standards (Almeida et al., J. Chromatogr. B 774 (2002)
+// 215; standards at nominal zero carry no %RE and do not count). It returns
+// the scores and the index of the one auto chooses (−1 when none could be
+// scored): the smallest Σ|%RE| among the candidates in which no level holds
+// more than MaxLevelWeightShare of the total weight, or among all scored
+// candidates when every one gives a level more. Σ|%RE| weighs the lowest
+// levels most (a relative error there is a small absolute one), so without
+// that rule it prefers weights that pin the curve to the lowest standard.
+// 1/s² is a candidate only when every non-zero level has the method's
+// minimum of readings (WeightOptions.MinReplicates). Fit reports the table
+// with a fixed weighting too, so a reviewer sees what auto would choose.
+func scoreCandidates(d *dataset, opt Options) ([]WeightScore, int) {
+	scores := make([]WeightScore, 0, len(autoCandidates))
+	w := make([]float64, len(d.x))
+	raw := make([]float64, len(d.x))
+	lo, hi := d.levels[0].x, d.levels[len(d.levels)-1].x
+	for _, c := range autoCandidates {
 		sc := WeightScore{Weighting: c}
 		if c == WeightInvS2 {
-			if lv := d.unreplicated(); lv >= 0 {
-				sc.Note = "skipped: the level at x = " + fmtG(d.levels[lv].x) + " has no replicates"
+			if lv, n := d.fewReadings(opt.Weights.MinReplicates); lv >= 0 {
+				sc.Note = "skipped: the level at x = " + fmtG(d.levels[lv].x) + " has " + itoa(n) +
+					" reading(s), fewer than the method's minimum of " + itoa(opt.Weights.MinReplicates) + " replicates for 1/s^2"
 				scores = append(scores, sc)
 				continue
 			}
 		}
-		wp, raw, err := planWeights(c, d)
+		_, pr, err := planWeightsInto(c, d, raw, opt.Weights.MinReplicates)
 		if err != nil {
 			sc.Note = "skipped: " + err.Error()
 			scores = append(scores, sc)
 			continue
 		}
-		w := append([]float64(nil), raw...)
+		copy(w, pr)
 		normalise(w)
 		f, err := solveLSQ(opt.Model, d.x, d.y, w)
 		if err != nil {
@@ -362,7 +396,6 @@ func fitAuto(points []Point, d *dataset, opt Options) (*Report, error) {
 			scores = append(scores, sc)
 			continue
 		}
-		lo, hi := d.levels[0].x, d.levels[len(d.levels)-1].x
 		sum, ok := 0.0, true
 		for i := range d.x {
 			if d.x[i] == 0 {
@@ -380,27 +413,58 @@ func fitAuto(points []Point, d *dataset, opt Options) (*Report, error) {
 			scores = append(scores, sc)
 			continue
 		}
-		sc.SumAbsRE = sum
+		sc.SumAbsRE, sc.Scored = sum, true
+		heavy := d.heaviestLevel(w)
+		sc.MaxLevelShare = heavy.Share
+		if heavy.Share > MaxLevelWeightShare {
+			sc.Note = "passed over: the level at x = " + fmtG(heavy.X) + " would hold " +
+				strconv.FormatFloat(100*heavy.Share, 'f', 1, 64) + " % of the total weight, more than half"
+		}
 		scores = append(scores, sc)
-		if best < 0 || sum < scores[best].SumAbsRE {
-			best = len(scores) - 1
-			bestPlan, bestRaw = wp, raw
+	}
+	best := -1
+	for pass := 0; pass < 2 && best < 0; pass++ {
+		for i, sc := range scores {
+			if !sc.Scored || (pass == 0 && sc.MaxLevelShare > MaxLevelWeightShare) {
+				continue
+			}
+			if best < 0 || sc.SumAbsRE < scores[best].SumAbsRE {
+				best = i
+			}
 		}
 	}
-	if best < 0 {
-		return nil, inputErr("options.weighting", "auto: no candidate weighting could be fitted")
+	if best >= 0 {
+		scores[best].Advised = true
 	}
-	scores[best].Chosen = true
-	return build(points, d, opt, bestPlan, bestRaw, bestRaw, scores)
+	return scores, best
 }
 
-// unreplicated returns the index of the first level with a single reading,
-// or −1 if every level has replicates.
-func (d *dataset) unreplicated() int {
+// fewReadings returns the index of the first non-zero level with fewer than
+// minN readings and its count, or −1.
+func (d *dataset) fewReadings(minN int) (int, int) {
 	for i, lv := range d.levels {
-		if lv.count < 2 {
-			return i
+		if lv.x > 0 && lv.count < minN {
+			return i, lv.count
 		}
 	}
-	return -1
+	return -1, 0
+}
+
+// heaviestLevel returns the level holding the largest share of Σw.
+func (d *dataset) heaviestLevel(w []float64) LevelShare {
+	var total float64
+	for _, v := range w {
+		total += v
+	}
+	var best LevelShare
+	for _, lv := range d.levels {
+		var s float64
+		for _, i := range lv.idx {
+			s += w[i]
+		}
+		if s/total > best.Share {
+			best = LevelShare{X: lv.x, Share: s / total}
+		}
+	}
+	return best
 }

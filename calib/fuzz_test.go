@@ -9,7 +9,7 @@ import (
 
 var (
 	fuzzModels     = []Model{Linear, LinearOrigin, Quadratic}
-	fuzzWeightings = []Weighting{WeightNone, WeightInvX, WeightInvX2, WeightInvY, WeightInvY2, WeightInvS2, WeightAuto}
+	fuzzWeightings = Weightings()
 )
 
 // decodePoints turns fuzz bytes into points. Mode 0 reads raw float64 bits

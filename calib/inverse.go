@@ -85,6 +85,11 @@ func invertCurve(m Model, c []float64, lo, hi, y float64) (x, sens float64, ok b
 // close before the vertex of the parabola (or within a thousand working
 // ranges) the interval is unbounded. Both forms equal the inverted band.
 //
+// A quadratic whose response ȳ0 is reached at two concentrations in the
+// working range (its vertex lies inside it) releases neither: the prediction
+// carries FlagAmbiguous (with FlagUnbounded), no concentration, and Method
+// names both roots.
+//
 // Preconditions: responses non-empty and finite; dilution ≥ 0 (0 means 1);
 // confidence in [0, 1) (0 means r.Confidence). Otherwise a *InputError.
 // Range and limit flags compare the undiluted x̂0 with the working range and
@@ -124,6 +129,14 @@ func (r *Report) Predict(responses []float64, dilution float64, confidence float
 	}
 	pr := Prediction{Readings: m, MeanResponse: y0, Dilution: dilution, Cautions: Cautions(),
 		Interval: Interval{Level: confidence}}
+	if x1, x2, amb := r.rootsInRange(y0); amb {
+		// A curve that is not monotonic over its range gives this response
+		// at two concentrations: neither is released (see monotonicCheck).
+		pr.Flags = append(pr.Flags, FlagAmbiguous, FlagUnbounded)
+		pr.Method = "none: the response is reached at two concentrations in the working range, x = " +
+			fmtG(x1) + " and x = " + fmtG(x2) + " (the curve is not monotonic there), so no concentration is reported"
+		return pr, nil
+	}
 	t := studentT(1-(1-confidence)/2, r.DF)
 	var x0 float64
 	ok := false
@@ -331,7 +344,7 @@ func (r *Report) predictable() error {
 	}
 	switch r.Weighting {
 	case WeightNone:
-	case WeightInvX, WeightInvX2, WeightInvY, WeightInvY2:
+	case WeightInvSqrtX, WeightInvX, WeightInvX2, WeightInvSqrtY, WeightInvY, WeightInvY2:
 		if !(r.WeightFloor > 0) || !fin(r.WeightFloor) {
 			return inputErr("report.weight_floor", "must be finite and > 0 for %s", r.Weighting)
 		}

@@ -29,11 +29,13 @@ import (
 //     outlier (common practice; > 2 is only suspect).
 //   - OutlierCooksD 1: Cook's distance > 1 is influential (common practice).
 //
-// Mandatory by default: min_levels, back_calculation, r_squared and mandel.
-// The first three are the acceptance criteria the cited guidance states for
-// a calibration run (ICH M10 levels and back-calculation, EPA 8000D r²), and
-// Mandel's test is ISO 8466-1's rule for whether the chosen model may be used
-// at all. The other checks stay advisory: lack of fit and homoscedasticity
+// Mandatory by default: min_levels, back_calculation, r_squared, mandel and
+// monotonic. The first three are the acceptance criteria the cited guidance
+// states for a calibration run (ICH M10 levels and back-calculation, EPA
+// 8000D r²), Mandel's test is ISO 8466-1's rule for whether the chosen model
+// may be used at all, and a curve that is not strictly monotonic over its
+// working range cannot turn a response into one concentration (common
+// practice). The other checks stay advisory: lack of fit and homoscedasticity
 // need replicates a run may not have; the residual runs test has little
 // power with six to ten levels; the relative standard error is EPA's
 // alternative to r², not an addition; an intercept different from zero or a
@@ -54,7 +56,7 @@ func DefaultPolicy() Policy {
 		RunsAlpha:               0.05,
 		OutlierStudentized:      3,
 		OutlierCooksD:           1,
-		Mandatory:               []string{CheckMinLevels, CheckBackCalculation, CheckRSquared, CheckMandel},
+		Mandatory:               []string{CheckMinLevels, CheckBackCalculation, CheckRSquared, CheckMandel, CheckMonotonic},
 	}
 }
 
@@ -66,7 +68,7 @@ var defaultPolicy = DefaultPolicy()
 var checkNames = [...]string{
 	CheckMinLevels, CheckMandel, CheckLackOfFit, CheckHomoscedasticity,
 	CheckBackCalculation, CheckRSquared, CheckRSE, CheckIntercept,
-	CheckResidualRuns, CheckOutliers,
+	CheckResidualRuns, CheckOutliers, CheckMonotonic,
 }
 
 // isZero reports whether p is the zero Policy, which Fit replaces by

@@ -119,7 +119,7 @@ func TestWeightScaleInvariance(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			_, raw, err := planWeights(opt.Weighting, d)
+			_, raw, err := planWeights(opt.Weighting, d, opt.Weights.MinReplicates)
 			if err != nil {
 				t.Fatal(err)
 			}

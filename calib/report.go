@@ -74,9 +74,10 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		N:                  n,
 		Levels:             len(d.levels),
 		Confidence:         opt.Confidence,
-		Range:              Range{Low: d.levels[0].x, High: d.levels[len(d.levels)-1].x},
+		Range:              workingRange(d.levels),
 		Engine:             EngineVersion,
 	}
+	r.weightFacts(d, w, wp)
 	m.cautions = cautionTexts
 	r.Cautions = m.cautions[:]
 	r.Coefficients = m.coef[:p:p]
@@ -104,6 +105,7 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		r.SxxW += w[i] * dx * dx
 	}
 
+	nf := fitNoise(d, opt.Model, f)
 	r.Points = make([]PointResult, len(points))
 	var v [3]float64
 	for i, pt := range points {
@@ -124,7 +126,9 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 		pr.Fitted, pr.Residual = d.y[k]-f.resid[k], f.resid[k]
 		pr.WeightedResidual = math.Sqrt(w[k]) * f.resid[k]
 		pr.Leverage = f.lev[k]
-		if f.s > 0 && 1-f.lev[k] > 1e-10 {
+		// An exact fit's residuals are rounding, which studentising would
+		// blow up to the size of real ones: they stay 0.
+		if !nf.exact && f.s > 0 && 1-f.lev[k] > 1e-10 {
 			pr.Studentized = pr.WeightedResidual / (f.s * math.Sqrt(1-f.lev[k]))
 			pr.CooksDistance = pr.Studentized * pr.Studentized * f.lev[k] / (float64(p) * (1 - f.lev[k]))
 		}
@@ -135,14 +139,14 @@ func build(points []Point, d *dataset, opt Options, wp weightPlan, planRaw, raw 
 	wp.zeroText(dt.t)
 	dt.keep(&r.ZeroHandling, start, len(dt.t.b))
 	start = len(dt.t.b)
-	r.Limits = computeLimits(r, f, dt.t)
+	r.Limits = computeLimits(r, f, opt.Weights, dt.t)
 	if len(dt.t.b) > start {
 		dt.keep(&r.Limits.Detail, start, len(dt.t.b))
 	}
-	r.Checks = computeChecks(r, d, &des, f, w, opt.Policy, m.checks[:0], &dt)
+	r.Checks = computeChecks(r, d, &des, f, w, nf, opt.Policy, m.checks[:0], &dt)
 	dt.done()
 	r.Verdict = verdict(r.Checks)
-	if !r.Finite() {
+	if !r.finite() {
 		return nil, inputErr("points", "values are outside the numerically usable range")
 	}
 	return r, nil
@@ -300,13 +304,15 @@ func FailedReport(points []Point, opt Options, cause error) *Report {
 			continue
 		}
 		r.N++
-		if !have || x < lo {
+		// The working range starts at the lowest non-zero standard (see
+		// workingRange); with only blanks it is [0, 0].
+		if x != 0 && (!have || x < lo) {
 			lo = x
 		}
-		if !have || x > hi {
-			hi = x
+		if x != 0 {
+			have = true
 		}
-		have = true
+		hi = max(hi, x)
 		seen := false
 		for _, v := range xs {
 			if v == x {
@@ -343,10 +349,10 @@ func FailedReport(points []Point, opt Options, cause error) *Report {
 }
 
 // finite reports whether every float in the report is finite.
-func (r *Report) Finite() bool {
+func (r *Report) finite() bool {
 	if !Finite(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
-		r.WeightScale, r.WeightFloor, r.Variance.C0, r.Variance.C1, r.Variance.Floor,
-		r.Limits.LOD, r.Limits.LOQ, r.Limits.CriticalValue, r.Limits.CriticalConc, r.Limits.DetectionLimit,
+		r.WeightScale, r.WeightFloor, r.Variance.C0, r.Variance.C1, r.Variance.Floor, r.HeaviestLevel.Share,
+		r.Limits.LOD, r.Limits.LOQ, r.Limits.Sigma, r.Limits.CriticalValue, r.Limits.CriticalConc, r.Limits.DetectionLimit,
 		r.Range.Low, r.Range.High) {
 		return false
 	}
@@ -359,7 +365,7 @@ func (r *Report) Finite() bool {
 		}
 	}
 	for _, c := range r.WeightCandidates {
-		if !Finite(c.SumAbsRE) {
+		if !Finite(c.SumAbsRE, c.MaxLevelShare) {
 			return false
 		}
 	}
@@ -382,7 +388,7 @@ func (r *Report) Finite() bool {
 	return s == 0
 }
 
-// Finite reports whether every v is neither NaN nor ±Inf (v − v is NaN for
+// finite reports whether every v is neither NaN nor ±Inf (v − v is NaN for
 // both, 0 for every finite v).
 func Finite(v ...float64) bool {
 	var s float64

@@ -13,7 +13,14 @@ import (
 // indicate curvature, so the test is one-sided: P(R ≤ r_obs) from the exact
 // distribution against RunsAlpha. Limit is the largest significant number
 // of runs (0 when none is: too few residuals of a sign).
-func runsCheck(r *Report, d *dataset, f lsq, pol Policy, t *text) Check {
+//
+// Residuals within the rounding floor (see noise) count as zero; an exact
+// fit has none left and passes (no pattern).
+func runsCheck(r *Report, d *dataset, f lsq, nf noise, pol Policy, t *text) Check {
+	if nf.exact {
+		t.s(exactFitText).s(": there are no residual signs to follow, so no pattern.")
+		return Check{Name: CheckResidualRuns, Computed: true, Passed: true}
+	}
 	// d.order is sorted by x; sort each level's readings by y (insertion
 	// sort: a level holds a few replicates). Readings with equal x and y
 	// have equal residuals, so any such order gives the same runs.
@@ -42,14 +49,10 @@ func runsCheck(r *Report, d *dataset, f lsq, pol Policy, t *text) Check {
 		}
 		a = b
 	}
-	scale := 0.0
-	for _, y := range d.y {
-		scale = max(scale, math.Abs(y))
-	}
 	n1, n2, runs, last := 0, 0, 0, 0
 	for _, i := range order {
 		e := f.resid[i]
-		if math.Abs(e) <= 1e-13*scale {
+		if math.Abs(e) <= nf.floor {
 			continue
 		}
 		sg := 1
@@ -170,8 +173,10 @@ func lchoose(n, k int) float64 {
 
 // outlierCheck: every fitted reading must have |internally studentised
 // residual| ≤ OutlierStudentized and Cook's distance ≤ OutlierCooksD
-// (common practice). Statistic is the largest |studentised residual|.
-func outlierCheck(r *Report, d *dataset, pol Policy, t *text) Check {
+// (common practice). Statistic is the largest |studentised residual|. An
+// exact fit (see noise) has none: its readings' studentised residuals and
+// Cook's distances are 0 (build), and the text says why.
+func outlierCheck(r *Report, d *dataset, nf noise, pol Policy, t *text) Check {
 	maxR, maxD := 0.0, 0.0
 	var bad *text // the flagged readings, taken from the pool when there is one
 	defer func() {
@@ -205,6 +210,9 @@ func outlierCheck(r *Report, d *dataset, pol Policy, t *text) Check {
 		s("), largest Cook's distance ").g(maxD).s(" (limit ").gc(pol.OutlierCooksD).s(").")
 	if bad != nil {
 		t.s(" Flagged: ").add(bad).s(".")
+	}
+	if nf.exact {
+		t.s(" ").s(exactFitText).s(", so no reading stands out; studentising would only magnify rounding, and studentised residuals and Cook's distances are reported as 0.")
 	}
 	if lev1 > 0 {
 		t.s(" ").i(lev1).s(" reading(s) have leverage 1 (the curve passes through them), so their residuals cannot be studentised.")

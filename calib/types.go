@@ -12,7 +12,7 @@ package calib
 // EngineVersion identifies the numerical behaviour of this package. It is
 // stored with every fit so that history never silently changes; bump it
 // whenever a reported number could change for the same input.
-const EngineVersion = "calib/1.0.0"
+const EngineVersion = "calib/1.1.0"
 
 // Model is the form of the response curve.
 type Model string
@@ -30,15 +30,85 @@ type Weighting string
 
 // The supported weighting schemes. Auto chooses among the others by the
 // smallest sum of absolute relative errors of the back-calculated standards
-// (Almeida et al., J. Chromatogr. B 774 (2002) 215).
+// among those in which no level holds more than half of the total weight
+// (Almeida et al., J. Chromatogr. B 774 (2002) 215, who compare 1/x^0.5,
+// 1/x, 1/x², 1/y^0.5, 1/y and 1/y²).
 const (
-	WeightNone  Weighting = "none"
-	WeightInvX  Weighting = "1/x"
-	WeightInvX2 Weighting = "1/x^2"
-	WeightInvY  Weighting = "1/y"
-	WeightInvY2 Weighting = "1/y^2"
-	WeightInvS2 Weighting = "1/s^2" // from replicate SDs via a variance model
-	WeightAuto  Weighting = "auto"
+	WeightNone     Weighting = "none"
+	WeightInvSqrtX Weighting = "1/x^0.5"
+	WeightInvX     Weighting = "1/x"
+	WeightInvX2    Weighting = "1/x^2"
+	WeightInvSqrtY Weighting = "1/y^0.5"
+	WeightInvY     Weighting = "1/y"
+	WeightInvY2    Weighting = "1/y^2"
+	WeightInvS2    Weighting = "1/s^2" // 1/s(x)² from a variance function fitted across levels
+	WeightAuto     Weighting = "auto"
+)
+
+// Weightings lists every scheme a method may name, auto last.
+func Weightings() []Weighting {
+	return []Weighting{WeightNone, WeightInvSqrtX, WeightInvX, WeightInvX2, WeightInvSqrtY, WeightInvY, WeightInvY2, WeightInvS2, WeightAuto}
+}
+
+// SigmaBasis names the σ of the ICH Q2(R2) limits LOD = 3.3·σ/S and
+// LOQ = 10·σ/S.
+type SigmaBasis string
+
+// The σ bases. ICH Q2(R2) allows the SD of the blank, the residual SD of the
+// regression or the SD of the intercept; with weights, the residual SD is
+// the SD of a reading of unit weight, not the SD at the low end.
+const (
+	SigmaAuto        SigmaBasis = "auto"            // blank SD when enough blanks were read, else lowest_level_sd
+	SigmaBlank       SigmaBasis = "blank_sd"        // SD of the readings at nominal zero
+	SigmaLowestLevel SigmaBasis = "lowest_level_sd" // s/√w at the lowest non-zero standard: the SD the weighting implies there
+	SigmaResidual    SigmaBasis = "residual_sd"     // s(y/x) itself, the SD of a reading of unit weight (calib/1.0.0)
+)
+
+// SigmaBases lists every SigmaBasis a method may name.
+func SigmaBases() []SigmaBasis {
+	return []SigmaBasis{SigmaAuto, SigmaBlank, SigmaLowestLevel, SigmaResidual}
+}
+
+// WeightOptions is a method's configuration of weighting and of the σ of
+// its limits. Zero values select DefaultWeightOptions' values.
+type WeightOptions struct {
+	// MinReplicates is the fewest readings every non-zero level needs for
+	// 1/s² to be a candidate of auto, and for a chosen 1/s² not to be
+	// flagged (FitFlagFewReplicates); also the fewest blank readings
+	// SigmaAuto takes the blank's SD from. At least 2.
+	MinReplicates int
+	// LimitSigma is the σ of LOD and LOQ.
+	LimitSigma SigmaBasis
+}
+
+// DefaultWeightOptions returns the weighting configuration used when a method
+// sets none.
+//
+//   - MinReplicates 3: an SD from two readings has one degree of freedom and
+//     its 95 % range spans a factor of about 70 (χ² with 1 df, computed);
+//     three readings give two degrees of freedom per level (a factor of about
+//     12), the fewest from which a level SD says anything, and the variance
+//     function pools those over the levels (common practice; ISO 8466-1 asks
+//     for ten readings at the ends of the range for its variance test).
+//   - LimitSigma auto: the blank's SD when the run has MinReplicates or more
+//     blank readings (ICH Q2(R2) "standard deviation of the blank"), else the
+//     SD the weighting implies at the lowest standard (the residual SD of the
+//     regression at the low end, which is what the LOD speaks of).
+func DefaultWeightOptions() WeightOptions {
+	return WeightOptions{MinReplicates: 3, LimitSigma: SigmaAuto}
+}
+
+// MaxLevelWeightShare is the largest share of the total weight one level may
+// hold before the fit is flagged (FitFlagDominantLevel) and before auto
+// passes a candidate over: above it, the curve is fitted to one level and
+// the others hardly count (common practice).
+const MaxLevelWeightShare = 0.5
+
+// Fit flags, as reported in Report.Flags: facts about the fit a reviewer
+// should see, which decide no verdict.
+const (
+	FitFlagDominantLevel = "dominant_level_weight" // one level holds more than MaxLevelWeightShare of the total weight
+	FitFlagFewReplicates = "few_replicates_for_s2" // 1/s² with a level below WeightOptions.MinReplicates readings
 )
 
 // Check names, as reported in Report.Checks.
@@ -53,6 +123,7 @@ const (
 	CheckIntercept        = "intercept"
 	CheckResidualRuns     = "residual_runs"
 	CheckOutliers         = "outliers"
+	CheckMonotonic        = "monotonic"
 )
 
 // Prediction flags.
@@ -63,6 +134,7 @@ const (
 	FlagBelowLOQ     = "below_loq"          // below the ICH Q2 quantification limit
 	FlagNegative     = "negative"           // negative point estimate
 	FlagNoRoot       = "no_root_in_range"   // no root on the calibrated (monotone) branch of the curve
+	FlagAmbiguous    = "ambiguous_root"     // two roots in the working range (curve not monotonic): no concentration
 	FlagUnbounded    = "unbounded_interval" // Fieller g ≥ 1 or band does not close: no finite interval
 	FlagExtrapolated = "extrapolated"       // set together with below_range or above_range
 )
@@ -82,6 +154,7 @@ type Options struct {
 	Weighting  Weighting
 	Confidence float64 // two-sided confidence level for intervals; 0 means 0.95
 	Policy     Policy
+	Weights    WeightOptions // zero fields take DefaultWeightOptions' values
 }
 
 // Policy holds every acceptance threshold. DefaultPolicy documents the
@@ -112,9 +185,18 @@ type Report struct {
 	Model              Model
 	Weighting          Weighting // the scheme used (the chosen one when Auto was requested)
 	WeightingRequested Weighting
-	WeightCandidates   []WeightScore // with Auto: every candidate's score, so the choice is explained
-	WeightConvention   string        // e.g. "weights normalised to sum to n = 16 before residual_sd"
-	ZeroHandling       string        // how zero x or y were kept from producing infinite weights
+	// WeightingAdvised is the scheme auto chooses for these readings, also
+	// when the method fixed another one; "" when no candidate could be scored.
+	WeightingAdvised Weighting
+	// WeightCandidates is every candidate's score, with auto and with a fixed
+	// weighting alike, so a reviewer sees what auto would have chosen.
+	WeightCandidates []WeightScore
+	// HeaviestLevel is the level holding the largest share of the total weight.
+	HeaviestLevel LevelShare
+	// Flags are FitFlag values: facts about the fit that decide no verdict.
+	Flags            []string
+	WeightConvention string // e.g. "weights normalised to sum to n = 16 before residual_sd"
+	ZeroHandling     string // how zero x or y were kept from producing infinite weights
 	// WeightScale turns the scheme's raw weight of a reading into its weight on
 	// the Σw = n scale: w = WeightScale·raw. Raw weights are taken relative to
 	// WeightFloor, e.g. (WeightFloor/max(|x|, WeightFloor))² for 1/x².
@@ -140,7 +222,7 @@ type Report struct {
 	MeanYW   float64       // ȳw
 	SxxW     float64       // Σw(x − x̄w)²
 	SumWX2   float64       // Σw·x² (for the origin model)
-	Variance VarianceModel // for 1/s²: s(x) model giving an unknown's weight
+	Variance VarianceModel // for 1/s²: the variance function giving every weight
 
 	Points   []PointResult
 	Checks   []Check
@@ -155,18 +237,31 @@ type Report struct {
 type WeightScore struct {
 	Weighting Weighting
 	SumAbsRE  float64 // Σ|%RE| of back-calculated standards
-	Chosen    bool
-	Note      string // why a candidate was skipped, if it was
+	Scored    bool    // SumAbsRE was computed
+	// MaxLevelShare is the largest share of the total weight one level holds
+	// under this candidate (0 when it was not fitted).
+	MaxLevelShare float64
+	Chosen        bool   // the scheme the fit used
+	Advised       bool   // the scheme auto chooses
+	Note          string // why a candidate was skipped or passed over, if it was
+}
+
+// LevelShare is one level's share of the total weight.
+type LevelShare struct {
+	X     float64 // the level's nominal concentration
+	Share float64 // Σw of its readings / Σw of all fitted readings
 }
 
 // VarianceModel describes how the response SD varies with concentration,
-// fitted to the level SDs for 1/s² weighting: s(x) = C0 + C1·x.
+// fitted across levels for 1/s² weighting. Kind "power" (calib/1.1.0):
+// s(x) = C0·max(x, Floor)^C1, Floor the smallest non-zero fitted
+// concentration. Kind "linear_sd" (reports of calib/1.0.0, still read):
+// s(x) = C0 + C1·x with Floor the smallest non-zero level SD.
 type VarianceModel struct {
-	Kind string // "" when unused, else e.g. "linear_sd"
+	Kind string // "" when unused, else "power" or "linear_sd"
 	C0   float64
 	C1   float64
-	// Floor is the smallest non-zero level SD; s(x) below it (or negative)
-	// is replaced by it, so an unknown's weight is always finite.
+	// Floor keeps every weight finite, see Kind.
 	Floor float64
 }
 
@@ -204,16 +299,19 @@ type Check struct {
 // Limits holds detection and quantification limits, in concentration units
 // except CriticalValue (a response).
 type Limits struct {
-	LOD            float64 // ICH Q2: 3.3·σ/S, σ = residual SD
-	LOQ            float64 // ICH Q2: 10·σ/S
-	CriticalValue  float64 // ISO 11843-2 critical value of the response, y_c
-	CriticalConc   float64 // ISO 11843-2 critical value of the net concentration, x_c
-	DetectionLimit float64 // ISO 11843-2 minimum detectable value, x_d ≈ 2·x_c
+	LOD            float64    // ICH Q2: 3.3·σ/S, σ as SigmaBasis says
+	LOQ            float64    // ICH Q2: 10·σ/S
+	SigmaBasis     SigmaBasis // the σ used (never SigmaAuto)
+	Sigma          float64    // its value, in response units
+	CriticalValue  float64    // ISO 11843-2 critical value of the response, y_c
+	CriticalConc   float64    // ISO 11843-2 critical value of the net concentration, x_c
+	DetectionLimit float64    // ISO 11843-2 minimum detectable value, x_d ≈ 2·x_c
 	Computed       bool
 	Detail         string
 }
 
-// Range is the working range, from the lowest to the highest accepted standard.
+// Range is the working range, from the lowest to the highest accepted
+// non-zero standard (a blank in the fit does not extend it; see workingRange).
 type Range struct {
 	Low  float64
 	High float64
@@ -230,6 +328,18 @@ type Prediction struct {
 	MeanResponse  float64
 	Dilution      float64
 	Cautions      []string // the same cautions as every Report (see Cautions)
+}
+
+// HasEstimate reports whether the prediction carries a concentration: not
+// when the curve has no root for the response, nor when it has two in the
+// working range (then Concentration and StandardError are 0 and mean nothing).
+func (p *Prediction) HasEstimate() bool {
+	for _, f := range p.Flags {
+		if f == FlagNoRoot || f == FlagAmbiguous {
+			return false
+		}
+	}
+	return true
 }
 
 // Interval is a confidence interval. When Bounded is false Low and High are 0

@@ -59,11 +59,9 @@ func (r *Report) Verify(responses []float64, nominal, limitPct float64) (Verific
 		return Verification{}, err
 	}
 	v := Verification{Nominal: nominal, LimitPct: limitPct, Prediction: pr, Cautions: Cautions()}
-	for _, f := range pr.Flags {
-		if f == FlagNoRoot {
-			v.Detail = "the curve has no root for the mean response " + fmtG(pr.MeanResponse) + ": the verification fails"
-			return v, nil
-		}
+	if !pr.HasEstimate() {
+		v.Detail = "the curve gives no single concentration for the mean response " + fmtG(pr.MeanResponse) + " (" + pr.Method + "): the verification fails"
+		return v, nil
 	}
 	v.Found, v.HasFound = pr.Concentration, true
 	v.RecoveryPct = 100 * pr.Concentration / nominal

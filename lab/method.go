@@ -28,6 +28,9 @@ type MethodInput struct {
 	Analytes   []Analyte
 	Acceptance calib.Policy
 	QC         QCPolicy // zero fields take DefaultQCPolicy's values
+	// Weights configures weighting and the σ of LOD/LOQ; zero fields take
+	// calib.DefaultWeightOptions' values.
+	Weights calib.WeightOptions
 	// Description is the administrator's free text about the method.
 	Description string
 }
@@ -42,6 +45,7 @@ type Method struct {
 	Analytes    []Analyte
 	Acceptance  calib.Policy
 	QC          QCPolicy
+	Weights     calib.WeightOptions // every field filled
 	Description string
 	CreatedAt   time.Time
 	CreatedBy   string
@@ -49,7 +53,7 @@ type Method struct {
 
 // Options returns the engine options this method revision fits with.
 func (m *Method) Options() calib.Options {
-	return calib.Options{Model: m.Model, Weighting: m.Weighting, Confidence: m.Confidence, Policy: m.Acceptance}
+	return calib.Options{Model: m.Model, Weighting: m.Weighting, Confidence: m.Confidence, Policy: m.Acceptance, Weights: m.Weights}
 }
 
 // Analyte returns the method's analyte called name.
@@ -64,9 +68,22 @@ func (m *Method) Analyte(name string) (Analyte, bool) {
 
 var (
 	models     = []calib.Model{calib.Linear, calib.LinearOrigin, calib.Quadratic}
-	weightings = []calib.Weighting{calib.WeightNone, calib.WeightInvX, calib.WeightInvX2,
-		calib.WeightInvY, calib.WeightInvY2, calib.WeightInvS2, calib.WeightAuto}
+	weightings = calib.Weightings()
 )
+
+// WeightOptionsWithDefaults fills the zero fields of o from
+// calib.DefaultWeightOptions (revisions stored before the options existed
+// read '{}').
+func WeightOptionsWithDefaults(o calib.WeightOptions) calib.WeightOptions {
+	d := calib.DefaultWeightOptions()
+	if o.MinReplicates == 0 {
+		o.MinReplicates = d.MinReplicates
+	}
+	if o.LimitSigma == "" {
+		o.LimitSigma = d.LimitSigma
+	}
+	return o
+}
 
 // CheckMethod refuses a method definition that breaks a rule, naming the field.
 func CheckMethod(in MethodInput) error {
@@ -100,6 +117,12 @@ func CheckMethod(in MethodInput) error {
 	}
 	if err := in.QC.Check(); err != nil {
 		return err
+	}
+	if in.Weights.MinReplicates < 2 || in.Weights.MinReplicates > 1000 {
+		return FieldError("/weighting_options/min_replicates", "min_replicates must be 2 to 1000, got %d", in.Weights.MinReplicates)
+	}
+	if !slices.Contains(calib.SigmaBases(), in.Weights.LimitSigma) {
+		return FieldError("/weighting_options/limit_sigma", "unknown σ basis %q", in.Weights.LimitSigma)
 	}
 	v := reflect.ValueOf(in.Acceptance)
 	for i := 0; i < v.NumField(); i++ {

@@ -36,6 +36,7 @@ func normalisePolicy(p calib.Policy) (calib.Policy, []byte, error) {
 // advisory lock, so revisions are numbered without gaps or duplicates.
 func (db *DB) CreateMethod(ctx context.Context, in lab.MethodInput, actor string) (m *lab.Method, created bool, err error) {
 	in.QC = in.QC.WithDefaults()
+	in.Weights = lab.WeightOptionsWithDefaults(in.Weights)
 	if err := lab.CheckMethod(in); err != nil {
 		return nil, false, err
 	}
@@ -51,6 +52,10 @@ func (db *DB) CreateMethod(ctx context.Context, in lab.MethodInput, actor string
 	analytesJSON, err := json.Marshal(in.Analytes)
 	if err != nil {
 		return nil, false, fmt.Errorf("store: marshal analytes: %w", err)
+	}
+	weightsJSON, err := json.Marshal(in.Weights)
+	if err != nil {
+		return nil, false, fmt.Errorf("store: marshal weighting options: %w", err)
 	}
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
 		m, created = nil, false
@@ -71,11 +76,11 @@ func (db *DB) CreateMethod(ctx context.Context, in lab.MethodInput, actor string
 			revision = latest.Revision + 1
 		}
 		m, err = scanMethod(tx.QueryRow(ctx, `
-INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by, qc, description)
-VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10)
+INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by, qc, description, weighting_options)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11)
 RETURNING `+methodColumns,
 			in.Name, revision, string(in.Model), string(in.Weighting), in.Confidence, analytesJSON, policyJSON, actor, qcJSON,
-			in.Description))
+			in.Description, weightsJSON))
 		if err != nil {
 			return classify("insert method "+in.Name, err)
 		}
@@ -87,7 +92,7 @@ RETURNING `+methodColumns,
 		return writeAudit(ctx, tx, actor, action, entityMethod, fmt.Sprintf("%s/%d", m.Name, m.Revision),
 			map[string]any{"name": m.Name, "revision": m.Revision, "model": m.Model, "weighting": m.Weighting,
 				"confidence": m.Confidence, "analytes": m.Analytes, "acceptance": json.RawMessage(policyJSON),
-				"qc": json.RawMessage(qcJSON)})
+				"qc": json.RawMessage(qcJSON), "weighting_options": json.RawMessage(weightsJSON)})
 	})
 	if err != nil {
 		return nil, false, classify("create method", err)
@@ -99,11 +104,11 @@ func sameMethod(m *lab.Method, in lab.MethodInput) bool {
 	return m.Model == in.Model && m.Weighting == in.Weighting && m.Confidence == in.Confidence &&
 		m.Description == in.Description &&
 		slices.Equal(m.Analytes, in.Analytes) && reflect.DeepEqual(m.Acceptance, in.Acceptance) &&
-		m.QC.Equal(in.QC)
+		m.QC.Equal(in.QC) && m.Weights == in.Weights
 }
 
 const (
-	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by, qc, description`
+	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by, qc, description, weighting_options`
 	sqlSelectMethod = `SELECT ` + methodColumns + ` FROM methods`
 )
 
@@ -137,10 +142,10 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*lab.Method, error) {
 		m                    lab.Method
 		model, weighting     string
 		analytes, acceptance []byte
-		qc                   []byte
+		qc, weights          []byte
 	)
 	if err := row.Scan(&m.Name, &m.Revision, &model, &weighting, &m.Confidence, &analytes, &acceptance, &m.CreatedAt, &m.CreatedBy,
-		&qc, &m.Description); err != nil {
+		&qc, &m.Description, &weights); err != nil {
 		return nil, err
 	}
 	m.Model, m.Weighting = calib.Model(model), calib.Weighting(weighting)
@@ -151,7 +156,7 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*lab.Method, error) {
 		cache.mu.Unlock()
 		if c != nil {
 			// A copy the caller may change.
-			m.Analytes, m.Acceptance, m.QC = slices.Clone(c.Analytes), c.Acceptance, c.QC
+			m.Analytes, m.Acceptance, m.QC, m.Weights = slices.Clone(c.Analytes), c.Acceptance, c.QC, c.Weights
 			m.Acceptance.Mandatory = slices.Clone(c.Acceptance.Mandatory)
 			return &m, nil
 		}
@@ -166,6 +171,10 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*lab.Method, error) {
 		return nil, fmt.Errorf("decode qc of method %s/%d: %w", m.Name, m.Revision, err)
 	}
 	m.QC = m.QC.WithDefaults()
+	if err := json.Unmarshal(weights, &m.Weights); err != nil {
+		return nil, fmt.Errorf("decode weighting options of method %s/%d: %w", m.Name, m.Revision, err)
+	}
+	m.Weights = lab.WeightOptionsWithDefaults(m.Weights)
 	if cache != nil {
 		c := m
 		c.Analytes, c.Acceptance.Mandatory = slices.Clone(m.Analytes), slices.Clone(m.Acceptance.Mandatory)

@@ -140,3 +140,33 @@ func TestCreateMethodRefusesBadInput(t *testing.T) {
 		t.Errorf("methods stored = %d, want 0", got)
 	}
 }
+
+// TestMethodWeightOptions: a method's weighting options are stored (migration
+// 000007), defaults filled, part of what makes a new revision, and passed
+// to the engine; the new 1/y^0.5 scheme passes the table's CHECK.
+func TestMethodWeightOptions(t *testing.T) {
+	db := newDB(t)
+	ctx := context.Background()
+	in := methodInput("ammonium-uv")
+	in.Weighting = calib.WeightInvSqrtY
+	m1, _, err := db.CreateMethod(ctx, in, "admin-test")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if m1.Weights != calib.DefaultWeightOptions() || m1.Options().Weights != calib.DefaultWeightOptions() {
+		t.Errorf("weights %+v, want the defaults", m1.Weights)
+	}
+	in.Weights = calib.WeightOptions{MinReplicates: 5, LimitSigma: calib.SigmaBlank}
+	m2, created, err := db.CreateMethod(ctx, in, "admin-test")
+	if err != nil || !created || m2.Revision != 2 {
+		t.Fatalf("changed options: %+v, created %v, %v", m2, created, err)
+	}
+	got, err := db.GetMethod(ctx, "ammonium-uv")
+	if err != nil || got.Weights != in.Weights || got.Weighting != calib.WeightInvSqrtY {
+		t.Errorf("GetMethod = %+v, %v", got, err)
+	}
+	in.Weights.MinReplicates = 1
+	if _, _, err := db.CreateMethod(ctx, in, "admin-test"); err == nil {
+		t.Error("min_replicates 1 accepted")
+	}
+}

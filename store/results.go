@@ -78,11 +78,7 @@ func quantify(rep *calib.Report, responses []float64, dilution float64) quantity
 		return q
 	}
 	q.mean, q.method, q.flags, q.level = p.MeanResponse, p.Method, append(q.flags, p.Flags...), p.Interval.Level
-	noRoot := false
-	for _, f := range p.Flags {
-		noRoot = noRoot || f == calib.FlagNoRoot
-	}
-	if !noRoot {
+	if p.HasEstimate() {
 		q.conc, q.se = fptr(p.Concentration), fptr(p.StandardError)
 	}
 	if p.Interval.Bounded {

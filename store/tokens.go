@@ -158,6 +158,29 @@ func liveToken(t lab.Principal, hash, stored []byte, revokedAt *time.Time, err e
 	return t, nil
 }
 
+// LiveTokensCreatedBy returns the tokens that actor issued and that are not
+// revoked, oldest first (their secrets are not stored, so not returned). It
+// lets a tool that issues tokens under its own actor name, such as the demo
+// loader, find and revoke the ones it issued before.
+func (db *DB) LiveTokensCreatedBy(ctx context.Context, actor string) ([]lab.Principal, error) {
+	rows, err := db.Pool.Query(ctx, `
+SELECT id, name, scopes FROM tokens
+WHERE created_by = $1 AND revoked_at IS NULL
+ORDER BY created_at, id`, actor)
+	if err != nil {
+		return nil, classify("list tokens", err)
+	}
+	out, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (lab.Principal, error) {
+		var t lab.Principal
+		err := r.Scan(&t.TokenID, &t.Name, &t.Scopes)
+		return t, err
+	})
+	if err != nil {
+		return nil, classify("list tokens", err)
+	}
+	return out, nil
+}
+
 // RevokeToken revokes token id; the next LookupToken refuses it. Revoking a
 // revoked token changes nothing and succeeds; an unknown id is KindNotFound.
 func (db *DB) RevokeToken(ctx context.Context, id, actor string) error {

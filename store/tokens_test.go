@@ -139,3 +139,40 @@ func TestEnsureTokenIsIdempotent(t *testing.T) {
 	_, _, err = db.EnsureToken(ctx, "bootstrap", "short", []string{lab.ScopeAdmin})
 	wantKind(t, err, lab.KindInvalid)
 }
+
+func TestLiveTokensCreatedBy(t *testing.T) {
+	db := newDB(t)
+	ctx := context.Background()
+	a, _, err := db.CreateToken(ctx, "loader-a", []string{lab.ScopeAdmin}, "loader")
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, _, err := db.CreateToken(ctx, "loader-b", []string{lab.ScopeResultsRead}, "loader")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, _, err := db.CreateToken(ctx, "someone else's", []string{lab.ScopeResultsRead}, "admin-test"); err != nil {
+		t.Fatal(err)
+	}
+	got, err := db.LiveTokensCreatedBy(ctx, "loader")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(got) != 2 || got[0].TokenID != a || got[1].TokenID != b || got[1].Name != "loader-b" ||
+		!slices.Equal(got[1].Scopes, []string{lab.ScopeResultsRead}) {
+		t.Errorf("LiveTokensCreatedBy = %+v, want loader-a (%s) then loader-b (%s)", got, a, b)
+	}
+	if err := db.RevokeToken(ctx, a, "loader"); err != nil {
+		t.Fatal(err)
+	}
+	got, err = db.LiveTokensCreatedBy(ctx, "loader")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(got) != 1 || got[0].TokenID != b {
+		t.Errorf("after revoking %s: %+v, want only %s", a, got, b)
+	}
+	if got, err := db.LiveTokensCreatedBy(ctx, "nobody"); err != nil || len(got) != 0 {
+		t.Errorf("LiveTokensCreatedBy(nobody) = %v, %v; want none", got, err)
+	}
+}

@@ -35,6 +35,7 @@ func validCurve() oapi.Curve {
 		ID: uuid.MustParse(curveID), RunID: uuid.MustParse("0b9e8d7c-6a5b-4c3d-8e2f-1a0b9c8d7e6f"),
 		Method: "nitrate-uv", MethodRevision: 1, Instrument: "photometer-1", Analyte: "nitrate", Unit: "mg/L",
 		Model: oapi.ModelLinear, Weighting: oapi.WeightingInvX, WeightingRequested: oapi.WeightingAuto,
+		Flags: []oapi.FitFlag{},
 		WeightCandidates: []oapi.WeightCandidate{
 			{Weighting: oapi.WeightingInvX, SumAbsRe: ptr(3.1), Chosen: true},
 			{Weighting: oapi.WeightingInvS2, Note: "too few replicates for a variance model"},

@@ -32,6 +32,7 @@ const (
 	CheckLackOfFit             CheckName = "lack_of_fit"
 	CheckMandel                CheckName = "mandel"
 	CheckMinLevels             CheckName = "min_levels"
+	CheckMonotonic             CheckName = "monotonic"
 	CheckOutliers              CheckName = "outliers"
 	CheckRSquared              CheckName = "r_squared"
 	CheckRelativeStandardError CheckName = "relative_standard_error"
@@ -54,6 +55,8 @@ func (e CheckName) Valid() bool {
 	case CheckMandel:
 		return true
 	case CheckMinLevels:
+		return true
+	case CheckMonotonic:
 		return true
 	case CheckOutliers:
 		return true
@@ -113,6 +116,24 @@ func (e CurveStatus) Valid() bool {
 	case CurveStatusPendingReview:
 		return true
 	case CurveStatusRejected:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for FitFlag.
+const (
+	FitFlagDominantLevelWeight FitFlag = "dominant_level_weight"
+	FitFlagFewReplicatesForS2  FitFlag = "few_replicates_for_s2"
+)
+
+// Valid indicates whether the value is a known member of the FitFlag enum.
+func (e FitFlag) Valid() bool {
+	switch e {
+	case FitFlagDominantLevelWeight:
+		return true
+	case FitFlagFewReplicatesForS2:
 		return true
 	default:
 		return false
@@ -257,6 +278,30 @@ func (e Scope) Valid() bool {
 	}
 }
 
+// Defines values for SigmaBasis.
+const (
+	SigmaBasisAuto          SigmaBasis = "auto"
+	SigmaBasisBlankSd       SigmaBasis = "blank_sd"
+	SigmaBasisLowestLevelSd SigmaBasis = "lowest_level_sd"
+	SigmaBasisResidualSd    SigmaBasis = "residual_sd"
+)
+
+// Valid indicates whether the value is a known member of the SigmaBasis enum.
+func (e SigmaBasis) Valid() bool {
+	switch e {
+	case SigmaBasisAuto:
+		return true
+	case SigmaBasisBlankSd:
+		return true
+	case SigmaBasisLowestLevelSd:
+		return true
+	case SigmaBasisResidualSd:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for TrendParameter.
 const (
 	TrendParameterIntercept  TrendParameter = "intercept"
@@ -322,13 +367,15 @@ func (e VerificationKind) Valid() bool {
 
 // Defines values for Weighting.
 const (
-	WeightingAuto  Weighting = "auto"
-	WeightingInvS2 Weighting = "1/s^2"
-	WeightingInvX  Weighting = "1/x"
-	WeightingInvX2 Weighting = "1/x^2"
-	WeightingInvY  Weighting = "1/y"
-	WeightingInvY2 Weighting = "1/y^2"
-	WeightingNone  Weighting = "none"
+	WeightingAuto     Weighting = "auto"
+	WeightingInvS2    Weighting = "1/s^2"
+	WeightingInvSqrtX Weighting = "1/x^0.5"
+	WeightingInvSqrtY Weighting = "1/y^0.5"
+	WeightingInvX     Weighting = "1/x"
+	WeightingInvX2    Weighting = "1/x^2"
+	WeightingInvY     Weighting = "1/y"
+	WeightingInvY2    Weighting = "1/y^2"
+	WeightingNone     Weighting = "none"
 )
 
 // Valid indicates whether the value is a known member of the Weighting enum.
@@ -337,6 +384,10 @@ func (e Weighting) Valid() bool {
 	case WeightingAuto:
 		return true
 	case WeightingInvS2:
+		return true
+	case WeightingInvSqrtX:
+		return true
+	case WeightingInvSqrtY:
 		return true
 	case WeightingInvX:
 		return true
@@ -460,8 +511,9 @@ type Check struct {
 	// Name A check of the acceptance policy: `min_levels`, `mandel`,
 	// `lack_of_fit`, `homoscedasticity`, `back_calculation`, `r_squared`,
 	// `relative_standard_error`, `intercept`, `residual_runs`, `outliers`,
-	// `drift`. `drift` is computed at ingest: the new curve's slope against
-	// the mean and SD of the same instrument and analyte's 20 most recent
+	// `monotonic`, `drift`. `monotonic` (mandatory by default) requires the
+	// curve to be strictly monotonic over the working range. `drift` is
+	// computed at ingest: the new curve's slope against the mean and SD of the same instrument and analyte's 20 most recent
 	// approved curves, with the Westgard reject rules (see
 	// `GET /v1/trends`). It is advisory unless the method lists it as
 	// mandatory, and it is left out when fewer than 10 approved curves
@@ -479,8 +531,9 @@ type Check struct {
 // CheckName A check of the acceptance policy: `min_levels`, `mandel`,
 // `lack_of_fit`, `homoscedasticity`, `back_calculation`, `r_squared`,
 // `relative_standard_error`, `intercept`, `residual_runs`, `outliers`,
-// `drift`. `drift` is computed at ingest: the new curve's slope against
-// the mean and SD of the same instrument and analyte's 20 most recent
+// `monotonic`, `drift`. `monotonic` (mandatory by default) requires the
+// curve to be strictly monotonic over the working range. `drift` is
+// computed at ingest: the new curve's slope against the mean and SD of the same instrument and analyte's 20 most recent
 // approved curves, with the Westgard reject rules (see
 // `GET /v1/trends`). It is advisory unless the method lists it as
 // mandatory, and it is left out when fewer than 10 approved curves
@@ -547,9 +600,15 @@ type Curve struct {
 	EngineVersion string `json:"engine_version"`
 
 	// Exclusion Present on an exclusion revision.
-	Exclusion  *Exclusion `json:"exclusion,omitempty"`
-	ID         UUID       `json:"id"`
-	Instrument string     `json:"instrument"`
+	Exclusion *Exclusion `json:"exclusion,omitempty"`
+
+	// Flags Facts about the fit that decide no verdict.
+	Flags []FitFlag `json:"flags"`
+
+	// HeaviestLevel The level holding the largest share of the total weight.
+	HeaviestLevel *LevelShare `json:"heaviest_level,omitempty"`
+	ID            UUID        `json:"id"`
+	Instrument    string      `json:"instrument"`
 
 	// Levels Distinct levels in the fit.
 	Levels int `json:"levels"`
@@ -574,7 +633,7 @@ type Curve struct {
 	// RSquared Weighted coefficient of determination (uncentred for linear_origin).
 	RSquared *float64 `json:"r_squared"`
 
-	// Range Working range, from the lowest to the highest accepted standard; null when there is none.
+	// Range Working range, from the lowest to the highest accepted non-zero standard (a blank in the fit does not extend it); null when there is none.
 	Range Range `json:"range"`
 
 	// ResidualSd Residual standard deviation s(y/x), on the Σw = n weight scale.
@@ -596,13 +655,16 @@ type Curve struct {
 	// Unit UCUM code of the analyte's concentration unit.
 	Unit string `json:"unit"`
 
-	// VarianceModel With `1/s^2`, the model of the response SD, s(x) = c0 + c1·x.
+	// VarianceModel With `1/s^2`, the variance function of the response SD: kind `power`,
+	// s(x) = c0·max(x, x_min)^c1 with x_min the smallest non-zero fitted
+	// concentration; kind `linear_sd` (curves of calib/1.0.0),
+	// s(x) = c0 + c1·x.
 	VarianceModel *VarianceModel `json:"variance_model,omitempty"`
 
 	// Verdict `fail` when any mandatory check failed or the curve could not be fitted.
 	Verdict Verdict `json:"verdict"`
 
-	// WeightCandidates With `auto`, every candidate's score; empty otherwise.
+	// WeightCandidates Every candidate's score, with `auto` and with a fixed weighting alike (empty on curves of calib/1.0.0 with a fixed weighting).
 	WeightCandidates []WeightCandidate `json:"weight_candidates"`
 
 	// WeightConvention How weights are scaled, e.g. normalised to sum to n before `residual_sd`.
@@ -610,6 +672,9 @@ type Curve struct {
 
 	// Weighting The scheme used (the one chosen when `auto` was requested).
 	Weighting Weighting `json:"weighting"`
+
+	// WeightingAdvised The scheme `auto` chooses for these readings, also when the method fixed another; absent when no candidate could be scored.
+	WeightingAdvised *Weighting `json:"weighting_advised,omitempty"`
 
 	// WeightingRequested The scheme the method asked for.
 	WeightingRequested Weighting `json:"weighting_requested"`
@@ -705,10 +770,17 @@ type CurveSummary struct {
 	// Verdict `fail` when any mandatory check failed or the curve could not be fitted.
 	Verdict Verdict `json:"verdict"`
 
-	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-	// replicate SDs; `auto` chooses among the others by the smallest sum of
-	// absolute relative errors of the back-calculated standards and reports
-	// every candidate in `weight_candidates`.
+	// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+	// power of its concentration or response (Almeida et al., J.
+	// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+	// variance function s(x) = c0·x^c1 fitted across levels to log(level
+	// SD) against log(concentration), never by a level's own SD; it is a
+	// candidate of `auto` only when every non-zero level has the method's
+	// `weighting_options.min_replicates` readings. `auto` chooses the
+	// candidate with the smallest sum of absolute relative errors of the
+	// back-calculated standards among those in which no level holds more
+	// than half of the total weight. Every curve reports all candidates in
+	// `weight_candidates`, also when the method fixed its weighting.
 	Weighting Weighting `json:"weighting"`
 }
 
@@ -749,6 +821,12 @@ type ExclusionRequest struct {
 	// Reason Why the readings are excluded.
 	Reason Text `json:"reason"`
 }
+
+// FitFlag A fact about a fit that decides no verdict. `dominant_level_weight`:
+// one level holds more than half of the total weight (see
+// `heaviest_level`); `few_replicates_for_s2`: `1/s^2` was used with a
+// level that has fewer readings than the method's `min_replicates`.
+type FitFlag string
 
 // Health defines model for Health.
 type Health struct {
@@ -800,6 +878,14 @@ type LateSampleInput struct {
 	Responses Responses `json:"responses"`
 }
 
+// LevelShare The level holding the largest share of the total weight.
+type LevelShare struct {
+	Concentration float64 `json:"concentration"`
+
+	// Share Σw of the level's readings over Σw of all fitted readings.
+	Share float64 `json:"share"`
+}
+
 // Limits Detection and quantification limits, in concentration units except `critical_value` (a response); null when not computed.
 type Limits struct {
 	// CriticalConcentration ISO 11843-2 critical value of the net concentration, x_c.
@@ -819,6 +905,12 @@ type Limits struct {
 
 	// Loq ICH Q2 quantification limit, 10·σ/S.
 	Loq *float64 `json:"loq"`
+
+	// Sigma The value of σ, in response units; absent when `sigma_basis` is.
+	Sigma *float64 `json:"sigma,omitempty"`
+
+	// SigmaBasis The σ used (never `auto`); absent when not computed and on curves of calib/1.0.0 (which used the residual SD).
+	SigmaBasis *SigmaBasis `json:"sigma_basis,omitempty"`
 }
 
 // Method defines model for Method.
@@ -847,11 +939,21 @@ type Method struct {
 	PendingCurvesInForce bool   `json:"pending_curves_in_force"`
 	Revision             int    `json:"revision"`
 
-	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-	// replicate SDs; `auto` chooses among the others by the smallest sum of
-	// absolute relative errors of the back-calculated standards and reports
-	// every candidate in `weight_candidates`.
+	// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+	// power of its concentration or response (Almeida et al., J.
+	// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+	// variance function s(x) = c0·x^c1 fitted across levels to log(level
+	// SD) against log(concentration), never by a level's own SD; it is a
+	// candidate of `auto` only when every non-zero level has the method's
+	// `weighting_options.min_replicates` readings. `auto` chooses the
+	// candidate with the smallest sum of absolute relative errors of the
+	// back-calculated standards among those in which no level holds more
+	// than half of the total weight. Every curve reports all candidates in
+	// `weight_candidates`, also when the method fixed its weighting.
 	Weighting Weighting `json:"weighting"`
+
+	// WeightingOptions A method's weighting options, every default filled.
+	WeightingOptions WeightingOptions `json:"weighting_options"`
 }
 
 // MethodList defines model for MethodList.
@@ -884,11 +986,21 @@ type MethodRequest struct {
 	// PendingCurvesInForce Whether a passing curve that awaits review may be the curve in force (default false).
 	PendingCurvesInForce *bool `json:"pending_curves_in_force,omitempty"`
 
-	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-	// replicate SDs; `auto` chooses among the others by the smallest sum of
-	// absolute relative errors of the back-calculated standards and reports
-	// every candidate in `weight_candidates`.
+	// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+	// power of its concentration or response (Almeida et al., J.
+	// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+	// variance function s(x) = c0·x^c1 fitted across levels to log(level
+	// SD) against log(concentration), never by a level's own SD; it is a
+	// candidate of `auto` only when every non-zero level has the method's
+	// `weighting_options.min_replicates` readings. `auto` chooses the
+	// candidate with the smallest sum of absolute relative errors of the
+	// back-calculated standards among those in which no level holds more
+	// than half of the total weight. Every curve reports all candidates in
+	// `weight_candidates`, also when the method fixed its weighting.
 	Weighting Weighting `json:"weighting"`
+
+	// WeightingOptions A method's weighting options; a field left out takes its default.
+	WeightingOptions *WeightingOptionsInput `json:"weighting_options,omitempty"`
 }
 
 // Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
@@ -930,12 +1042,14 @@ type PredictionResponse struct {
 
 // PredictionResult defines model for PredictionResult.
 type PredictionResult struct {
-	// Concentration Concentration after the dilution factor; null when the curve has no root for this response.
+	// Concentration Concentration after the dilution factor; null when the curve has no root for this response, or two in the working range (`ambiguous_root`).
 	Concentration *float64 `json:"concentration"`
 	Dilution      float64  `json:"dilution"`
 
 	// Flags `below_range`, `above_range`, `extrapolated`, `below_lod`,
-	// `below_loq`, `negative`, `no_root_in_range`, `unbounded_interval`.
+	// `below_loq`, `negative`, `no_root_in_range`, `ambiguous_root`
+	// (two concentrations in the working range give the response: none
+	// is reported), `unbounded_interval`.
 	// Stored sample results may also carry `no_curve` and
 	// `not_quantifiable` (see `SampleResult`).
 	Flags []string `json:"flags"`
@@ -1001,7 +1115,7 @@ type ProblemField struct {
 	Pointer string `json:"pointer"`
 }
 
-// Range Working range, from the lowest to the highest accepted standard; null when there is none.
+// Range Working range, from the lowest to the highest accepted non-zero standard (a blank in the fit does not extend it); null when there is none.
 type Range struct {
 	High *float64 `json:"high"`
 	Low  *float64 `json:"low"`
@@ -1288,6 +1402,16 @@ type SamplesRequest struct {
 // Scope defines model for Scope.
 type Scope string
 
+// SigmaBasis The σ of the ICH Q2(R2) limits LOD = 3.3·σ/S and LOQ = 10·σ/S.
+// `blank_sd`: the SD of the readings at nominal zero (also those
+// excluded from the fit); `lowest_level_sd`: s/√w of a reading at the
+// lowest non-zero standard, the SD the weighting implies there (equal
+// to the residual SD when unweighted); `residual_sd`: the residual SD,
+// the SD of a reading of unit weight; `auto` (the default): `blank_sd`
+// when the run has `min_replicates` or more blank readings, else
+// `lowest_level_sd`.
+type SigmaBasis string
+
 // Standard defines model for Standard.
 type Standard struct {
 	Analyte       string    `json:"analyte"`
@@ -1403,7 +1527,10 @@ type UUID = openapi_types.UUID
 // Unit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
 type Unit = string
 
-// VarianceModel With `1/s^2`, the model of the response SD, s(x) = c0 + c1·x.
+// VarianceModel With `1/s^2`, the variance function of the response SD: kind `power`,
+// s(x) = c0·max(x, x_min)^c1 with x_min the smallest non-zero fitted
+// concentration; kind `linear_sd` (curves of calib/1.0.0),
+// s(x) = c0 + c1·x.
 type VarianceModel struct {
 	C0   float64 `json:"c0"`
 	C1   float64 `json:"c1"`
@@ -1489,26 +1616,81 @@ type VerificationRequest struct {
 
 // WeightCandidate defines model for WeightCandidate.
 type WeightCandidate struct {
+	// Advised The scheme `auto` chooses.
+	Advised bool `json:"advised"`
+
+	// Chosen The scheme the fit used.
 	Chosen bool `json:"chosen"`
 
-	// Note Why a candidate was skipped; empty otherwise.
+	// MaxLevelWeightShare The largest share of the total weight one level holds under this candidate; null when it was not fitted.
+	MaxLevelWeightShare *float64 `json:"max_level_weight_share"`
+
+	// Note Why a candidate was skipped or passed over; empty otherwise.
 	Note string `json:"note"`
 
 	// SumAbsRe Σ|%RE| of the back-calculated standards; null when the candidate was skipped.
 	SumAbsRe *float64 `json:"sum_abs_re"`
 
-	// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-	// replicate SDs; `auto` chooses among the others by the smallest sum of
-	// absolute relative errors of the back-calculated standards and reports
-	// every candidate in `weight_candidates`.
+	// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+	// power of its concentration or response (Almeida et al., J.
+	// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+	// variance function s(x) = c0·x^c1 fitted across levels to log(level
+	// SD) against log(concentration), never by a level's own SD; it is a
+	// candidate of `auto` only when every non-zero level has the method's
+	// `weighting_options.min_replicates` readings. `auto` chooses the
+	// candidate with the smallest sum of absolute relative errors of the
+	// back-calculated standards among those in which no level holds more
+	// than half of the total weight. Every curve reports all candidates in
+	// `weight_candidates`, also when the method fixed its weighting.
 	Weighting Weighting `json:"weighting"`
 }
 
-// Weighting Least-squares weights. `1/s^2` uses a variance model fitted to the
-// replicate SDs; `auto` chooses among the others by the smallest sum of
-// absolute relative errors of the back-calculated standards and reports
-// every candidate in `weight_candidates`.
+// Weighting Least-squares weights. `1/x^0.5` … `1/y^2` weight each reading by a
+// power of its concentration or response (Almeida et al., J.
+// Chromatogr. B 774 (2002) 215). `1/s^2` weights by 1/s(x)² from a
+// variance function s(x) = c0·x^c1 fitted across levels to log(level
+// SD) against log(concentration), never by a level's own SD; it is a
+// candidate of `auto` only when every non-zero level has the method's
+// `weighting_options.min_replicates` readings. `auto` chooses the
+// candidate with the smallest sum of absolute relative errors of the
+// back-calculated standards among those in which no level holds more
+// than half of the total weight. Every curve reports all candidates in
+// `weight_candidates`, also when the method fixed its weighting.
 type Weighting string
+
+// WeightingOptions A method's weighting options, every default filled.
+type WeightingOptions struct {
+	// LimitSigma The σ of the ICH Q2(R2) limits LOD = 3.3·σ/S and LOQ = 10·σ/S.
+	// `blank_sd`: the SD of the readings at nominal zero (also those
+	// excluded from the fit); `lowest_level_sd`: s/√w of a reading at the
+	// lowest non-zero standard, the SD the weighting implies there (equal
+	// to the residual SD when unweighted); `residual_sd`: the residual SD,
+	// the SD of a reading of unit weight; `auto` (the default): `blank_sd`
+	// when the run has `min_replicates` or more blank readings, else
+	// `lowest_level_sd`.
+	LimitSigma    SigmaBasis `json:"limit_sigma"`
+	MinReplicates int        `json:"min_replicates"`
+}
+
+// WeightingOptionsInput A method's weighting options; a field left out takes its default.
+type WeightingOptionsInput struct {
+	// LimitSigma The σ of the ICH Q2(R2) limits LOD = 3.3·σ/S and LOQ = 10·σ/S.
+	// `blank_sd`: the SD of the readings at nominal zero (also those
+	// excluded from the fit); `lowest_level_sd`: s/√w of a reading at the
+	// lowest non-zero standard, the SD the weighting implies there (equal
+	// to the residual SD when unweighted); `residual_sd`: the residual SD,
+	// the SD of a reading of unit weight; `auto` (the default): `blank_sd`
+	// when the run has `min_replicates` or more blank readings, else
+	// `lowest_level_sd`.
+	LimitSigma *SigmaBasis `json:"limit_sigma,omitempty"`
+
+	// MinReplicates Fewest readings every non-zero level needs for `1/s^2` to be a
+	// candidate of `auto` (and for a fixed `1/s^2` not to be flagged),
+	// and fewest blank readings `limit_sigma: auto` takes the blank's SD
+	// from. Default 3: an SD from two readings has one degree of
+	// freedom (its 95 % range spans a factor of about 70).
+	MinReplicates *int `json:"min_replicates,omitempty"`
+}
 
 // CurveID defines model for CurveID.
 type CurveID = UUID
@@ -7635,339 +7817,363 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L3dciPJtS72KmnqKBocFUEQzZ6ZJkMRh2J3a7jVfyJ7ZvbxYDYqUZUAUixkoiuzCELT7bDDN963vvED",
-	"nOMH2CfCoXD4bnx//AzWkzhyrcysrEIBLPCnZ7TditA0AVTlf67/9a2fdhI5m0vBhFY7Rz/tTBlNWQ5/",
-	"njOdL0/GmuXmU8pUkvO55lLsHO1csESKVBEtyYJyTUZsLHNGcvMKF5PuTrSTs/cFz1m6c6TzgkU7Kpmy",
-	"GTVNzbjgs2K2c9SLdvRyznaOdrjQbMLynY8fP0Y7c5rTGdN2GKdFfsXOnq2O4d2UkcT8+EgRnpouufl6",
-	"TvV0J9oRdAYNpxuH8h9yNt452vnNfrkK+/ir2v/227NnO2Y8ZymbzaVmIln+iS1XB3JCkowzofeSqVRM",
-	"kEu2JB1KzPuEK0LJRMqUJFPJE7ZL9JRqMqOXzPxiFoyzdCDMEJnSRNExOyaKMaKnjMg5y6np5ZEiQZ/d",
-	"gXCzxf0q5xuMdc8MtrLu9PolExM93Tk66H8dmX3wn82qa81y0+a//HCy99/Tvb/29p52h0d7P/50EB30",
-	"v/74H3b8dimdczHBxRFK58WMCd28Q9z/TnjKhOZjzvKIUEXmUmmWkgXXU8K1Inkh1LpdLDu57W6e+c5h",
-	"2OeFWHem8kI87In6aN5XcykUgxP+B5qe4/abT4kU2q4mnc8znsAB2J/ncpSx2e/+osxAf2rZ41t8Czut",
-	"TvUVzcYyn7GUqKXQ9Doii1yKCTFbTGROKLmiWcGILLTiKZ5HbPaIzNy7A/FPF29eR4QSPBJkMWU5I5SI",
-	"YjZiORmxTIqJiggVpBCXQi4EGXOWpeYVe+KIzAcip2LCyBWXGdUMfn1fsHxJPC3Ae5NKpoiQmpilWZp7",
-	"8DHaOZVinPHkk64eHBSmZJEnhv4oTTUjY5mPuKGK8CNe6A5FIkVydsXZgqWEZjmj6TIidCDwJ3MFZKEJ",
-	"JWOuIyAL+DLcDVh4OmPm/ri7DTRGaZ5lhIuBmf5kqnfteryAYaRMfOoF0fKSCZLR5FIRdmW2TyVyzkjG",
-	"4aZzQeLrPXd19uA3FXd3gIqYk0Cz53ku8085bNcxYabnLjHTGMl0SRRdKiJFtiQD4E7lQ4MdQkVa2WRD",
-	"LD5GO6+lfiELkX7qdTeUKfXHsbwk7JorDSN7S5eZpOk7KV/SfMI+9QBhRdl1wpi9HYrlVyx/pEgixZhP",
-	"ipylJOMzjqO9YPkVT9i3gl5RntFR9skHnFJNR1QxklBhVnJk9pomU5YSIReRoY9uGjxhhsuraaG1oYCp",
-	"XAjDOuqS1J4XpZrGZZ/eD4QuGNo7KV9RsbT8Qf0iN/qR8gc9N2SOKyKvWA5M227afU33W0ELPZU5/yv7",
-	"pLfoFVeKi0lUcrbI8yuZG9otL1lKRozmhhWZValN+vvvv987KfTUSBkJ1WxVtoj/AG/HSNWpIDGQk5hQ",
-	"rXM+KjQjnfMXp+TLr570djdL0HUxDJdunsuEKWXuy3OhuV5+yhX8nmXZnhUouJgXGhn2KGf0EiTdImNE",
-	"jsNrc2xXQMVAwRQxN2wg5HjMRGquEkgKJbEtMmY53LdCFfO5zDVLX7GU03ewHp+a+8OVeKTIKfa6Z0Zh",
-	"LochGFLUJHhCk4TNteqC+Gn7MEM4ge+pSNiZWTYYe5py8w7N3uamAc2NoDimmWL1kZRvEz3NmZrKLFXH",
-	"sJIwhoyNtRHhiAaNwwyJiQkXDDSKMS0yTTpqinJZliGXlgIenDE9lSkcxXkwjp92RjS5HCY0S4aZXAy1",
-	"zFhuRjCcowzGrpOsUPyKvXKKHp5fczqo3jnaSWVhaHpkNBJ84KDXi5r0QhQjzZaXfc64GM6pUsNxThNc",
-	"hp82tt265U8zk6mcSZWwlCrNE66XQ5rNpzeexhN46GOEwojZ9C3fM2LZUI6HY77tmzMqUqpl3qD6nk6Z",
-	"EfYWRvElY8qzIsd/8ahdsTzliT7Gq6CnLFeEGv0gveJK5ktQsTSbqZvGAv28NgoYjOf6DF86KNeX5jk1",
-	"6m4h+PuC2d/NbtkJsGzrWV8Pc/WwR8Ec5YxdsUxZ/RwffRK+1181kuCL+VC9L2iOjPIO518WOuMsHyZS",
-	"Xqph+mCTdf0oXYAubln8g/SVF0Jtud9XLOdjyzFWKUH12H/47bMPRkEOXjEqoEhpnpLO2el3+6en3+2S",
-	"GV0SQ1sJnVAujJ6g1UAIOeNGmQD1ukueWSrc70WEGkmIfHtBnr89IRff7319+CV5BVSYfN3r9Z4NREIz",
-	"PrIcJewer1hGRzKHq/pIWfJNFNMKRDUjl4Lh6AFW/KP/Ro7+whJtFrRkTW9lxpPllpztOSiQnqkZvjSW",
-	"ecIix7dUybG2ZlGrU707w9mGsbR4ez2baPFyA5No8VYji2jxXoVBbE/PKxS8gVy3GkGFWLd5o0J6b0Vh",
-	"21DSLd6q0cUWb1apXIsXtqFxRsZFOpdlcsFSc/uaKZ4inTQgYuvJF4iSNw7zY6j5/BBuVO1oNB3Ytfdm",
-	"/XWMNhKLzYSgfk6qJ3H1Hlb2rHnrV49ReME27uGPTVTYHY+6z0LxiYCGjO4AC9y8O54H9LpPQh7Q7fV6",
-	"Bw1n7ETQbIn670ZqX6XXaFxvb8IHQU/faHA3z9QPFHRl329csSLl+vmV0yPbz6FkDjXV2CjCC6pIKgWL",
-	"COtOuiTOC9FNckY1S+OIxGAI7o65rnym83kur8JvcmaGydK4u+qNicwIZIO3zhBap3ujjRZ0c2oaam6n",
-	"RkWpZnuaz1jTsynTlGfN9GNOc82TIqO5iggXSVaAXk+dMTwH0xJVUnQbnUvhtlFzn3CC0Y6/frb3tfv4",
-	"Uk623EV25XyhrThZcFpWWFltBrblprGe0sIMT605PGhrVobCcgUGETQzHFmrAtxhJ2QGJlVLlgciyblm",
-	"OadknMsZmRejjKspS8mk4Kl5uUF8pEmSs5RrIDTRQORsUmTmR+jfCpcXb96CZYHMc5awlEFTuLlktAQv",
-	"Ds3MlU3JnOVKioHwruKMUcWsK9Ot9MrpmnHhdL1VQQGkiC2312xhoZHFVlf6hXmcLKYMrR+JaZwksshS",
-	"Yk3A7l1YLUFiwwtYGpvNgL5gZWI8kjF6EBbTZXC0R1JmjIrqtVmZM9hUmy9UIA7DUTAjMowHbIrHRBRZ",
-	"Vp/BlJqjIsCnt6BonXITaab4phU0uqNesFneqx9XZtT8wH5kfd16aoYLI0pZ4hyK3kAAxoEFV8xOLLQQ",
-	"rC5eG25RETFxp4LVDhpDr0njVHLmLY9463RpNUvkjMF1aqSgytwbI4Gs2Ufw9btnzNbMGFVwZ0EtDLfy",
-	"zhvWzP/KEboT55cpKm9JVfawS7WR7Jbr3hQoAQfAsqKAds1BQzwicSntGZ6H4l4cDUQciHrml7qUZ77z",
-	"gpqhU1wK850XzaCRnJlfrtjQia5DNMFHJPaSGrzFFE8Lmg2NtGa+sCKZglbSnI913CX2D3cPzXoRqgkX",
-	"E6b0EUxRsIWPUVGZnHsqPRB4Q6iAg3XxzNvGwdNbBk2YXymKVI8U6ffITCpNDLUVeiCcgICdqKj0GH/P",
-	"lJ7QPCUoMcAZVqSjGBuI+I/P35H9q4N9nTORqni3S84qt44UImNKhbc44wrsCISqgfBnIrLXwrzsTc1w",
-	"aseGvRs5Q5CDHqmNcyDANRm5frAB3yrpAH3Fb3OGhn5So1271pghjDTaqCZUFYQG1SAU7u2ZMRJ6IM2v",
-	"OTChZA9PBcelFODNn3BEgntiKUS0c71nRr53RXPwfZgpwM15xcVLNw38ws0FPr2kyeWb8QuYDnzxzeqc",
-	"4Ps/0OTytDIv+Pr8ws8NP9sJXtj5PbfTgx/Pgjnap3Gi5zhP+O5NOVn4/AxnjHEZ5pSitaqJGjhLWBI+",
-	"aARFJA/+1BtR/Qbl5KAX/O8G4+CpEZBAVmkgzgu5p3hqTqp/CrUjc0Fh069opiLS6z4hWpJe9+nTpzcq",
-	"Tk+fPq2oTk+aR6Vzmb00pFhtaSu7mLLFlOYg+5lG0C2rSOfs4g356uuvenv9XcdSfKzJiCqWccG6DRyk",
-	"SbEZTvlk2tLQYN/I5KLlC7D/rOXDC5oLLibbDMi90nZENZ5ph1dtpzaQyqyjyqI18kncqvMia+SUJf02",
-	"wkfHf2Sa0KwbkdOMiy45nbJZl/S/Ip2Dp18f7JLDp493j0h8sNdX8QCkPgziGrGlFCn5+d/6htV07Lh3",
-	"j82jj1UMrkL/zGNy8eyYxH3TCNELORCJFIolhSEU7jHPq6BFOG/HJD7fO8R3SPBKZJofCDqSV4z8Dp53",
-	"Pl0Q+yBKbEH+/r/8r33s+XDvQMVkLIucrPaMnBO6Pgi7Puhdx0QzUXnFejLhaYhis1zWMN4q/zBLthPt",
-	"mOXYiXb6+MlMZyfaMeMxv/WuW1Jys6kH2IL567H7q++/Oz90fx0e+OdM++ZkFLlqUuPfzOn7gpFLtlRM",
-	"G06qZE465hp/eVjk5dWeG8ohJmBtC2I+nxz0W8V8Dvd+/N1/aJJpIRJ3W/80QZsGMv4u+d4pJzmjZpCq",
-	"qmHZh6k55JmRtRLJxmOecCPaG0GsyodVjCpXIq9ozo0kGYN/kc3mehmZfgYCb7RCk4dgpnXTDTxnyF5E",
-	"YquFgCQXj43yFtl2wb0JqtxAGFUOjkydOCKZGFLdqEPY6RYCtC/3dJVlbLKv0NKetvJbEpgNNupC7jnz",
-	"DsxpO0t9k5U+3JnViZ8JMpMpy/bY+wKtxTJPWX5EDMehOflh1IvI6ODHyH4xlDmfcEF+gO/eFzQ10kDi",
-	"novIqP9jxVvczilgbQePm4a/Xgg4bWD9ZhNHKIyn5rNTA71I0Mq2bfp1R7WpX/cbmVGd82vXcbjWEVE/",
-	"/9fOP/+//8f/+P0/7/79f/q/fv4/I5LLhTJiU/Acrndlye5t7TYvLBo1N18HG/dKlb/xIiVKy61uRjpe",
-	"7cFJqCRlk5wxZVZwnDOWyllEhOExZB4o7IHDB8NihlcsV43iKqQbBN5XfB7Jilf/zNwghheNvPD8/kG3",
-	"1+01G2ytKxb723QNn/sHP0Y7PG0XaR6FgfONlibvAKvO9RlXmotE4/FXTiIfoxi+KX/D2hJuJCtWzDWH",
-	"CfTLZuMf/DTM2RVfvydWP3UPNR8vwxorQz9ojKowFOumkb+Chz5GO6Lp9FmmVi4Y6cAeG41CCuZU2EKA",
-	"BnvjYs4lbySv6Bz3IQeWmUZuujInrteITHJZzFlKRktLzbhANqR4SZjbR+KYpX1rhtXEFCoe03qAIJ9M",
-	"QRIIiZQhpJrlRg+EwXQKVAWtv7HCHHZvaa6E3IKb5nUOD30MlHmVbiAvfulTdsWtO7Sz3L/ejZzM+d/+",
-	"84L8ngiygHkTldCM3XYCYFC/cQb4lH3e3IWhBApJs+zNeOfohzYk48e6APc2Zwp2ShAqiKdX/r5FwYXj",
-	"6ObKmT2GaB1FR/WwPdGqyXgN2Wdu8fGBNVwSnF4rZ/uuvE9pqot2t+QCHw18ldVpfHv67SuSyFIrKS0e",
-	"FYuIt3+sEEgnLgxbUa7v7NOeglm598b37GNGjYbDPEyoSLnhzU0OK66nJKaFlnFks0D8448UUYnM2TFK",
-	"6KXVvzX5QSpy6hpsokFujFJcMdFsevpGLuy9xHhEuJyp5drCnJCMK8POJVHFzPwjXIpjHNCHZp6ODZsP",
-	"re/e9/6V1Qv4zuVdMVKYMXVAbxaM2GxDsLbietvbB3HJwF7C0Qz9D/c+rsBMTNUlkm7o/K8sl8MpFWlm",
-	"l2N1G8wj1eOuMOLeJsiRBcuNzjvX1neZy7RIuJgQLsZccM3cTrpDZZ0mghGaSzxamz3LmNGHJMrLI6vS",
-	"R1RNQ3R6mb3dTnoI97959ZtuUdOprS9fTeVapZMV5aLKyEBYrpq2TQfeYB5oQ17o8Kqil+kcKy0ph6eH",
-	"UUUPrmgBgZq6ImU3GsYg4Ve8kNYrt00Exhq36UyiLwUOJx3JQrfXMkZU8Ua//NL6NJH1qSBAkQuykHmq",
-	"GsnDrXR2Z3m5mecUsxnNl6hbzHnO1HpFjBv5nl4xheM2AmJ5kx8pYg3YhE5YzXgsBVu7gGukmUDpoEoP",
-	"wyim9vTou/CtZpKUUfCtVgLVqNGGPQGnOq66V5tM4CsGYNgBdxoijEYJVrhpWsFerz3nL7naNszo1gdo",
-	"C6NP7SjVWaxg13qYrDFTovnSyTTmUTIvj5CVjs1qwdfdm49M01aYPQhH0WatUWvZzn75RrAVNatMWU85",
-	"nQipNE/UMaHBR4jP8UeM61pOJukIiXYCmRMhSS6lBn1nRJPLvcAdaR9AN1kPHnEuSRR+N2XnFJBL3Wje",
-	"CoRLMynoF/mrl+ZvqaskdadfK5sYBDpypZ1d7BYdO4W3OcgDNZJbNg1scq0BJaeT247Zu5dhL5vjcA96",
-	"vZ//1qltKhiyKku9u1/5eGtNE2WGW88HpbaW+x6EvQ7DnptTtLMlcS8oTHeGF245U5S31pkp6ko8KAjH",
-	"pIf32R21+4jGwbNVvzfBUvqh+kMcbNOaNQwO5srtilYIROM5DC7UWoJ64XXhupUEAgABFKFLTsooGHCw",
-	"zDG7c4hWjfjYh4NCHJ2hdN3AL1d92nBeG0oCw8Zg2LbxFeWY32Kr567R4KeTsv3g23PflZ+8ZY/bxghX",
-	"vEX34AKqmNvbtTemPGPpsPQErYYLl0YVzPBD9A2Ojro5VYp0ynAdmfvIod3uxnDOuiBxb5bs7azI92kG",
-	"viFJ5Gaaua1t7Pbmp1X70S0NQFabb2k6+HTqdqjfNqio1XO/QWVtonjPeFY0W5PcL2QM4emATcONognZ",
-	"fFxYZZd0fCjb7y05xOCM//t/I6ltYveYHCCPoSPFBKipt0vXaxEH9Tx0Pm0hE99kEu42+MhtXsKdMg02",
-	"O0OccI7BBdYZZHmYqlClLcj1eskvZ4gvwJrSx9bw+PKdpgO24kuhYsKGmB4BKTI3Kdblow0/VTwCrWDP",
-	"whmE7wcGIttjbaxBmkbzVfIHr51GtmZL2qcKVfZqVb9zJ8dyPOggIgd7I6oQD2HFW3ZsDdtNb9avb+VS",
-	"bvZANh6bjQsY4IZtsYTlRWplDahtV8VD8sTOaX2SRv0Yt7P0vGPXusHCg1Y3RhAuDPOrcy4uCdVkJPWU",
-	"MJGqY+JWscyFyOSCKYymnvLJ1Pxtfds0Z/ZVL9VX7tL9jNc5hiE6qeyotuP1i9W0998wmunpljteig1O",
-	"rpaX2E26bCk9Y79v/rTjhnCOL9fnYLtqGnpwK5uigW2WGhVB/HvknGKRtUtGLiQnJ4rO5uhTDaLcvjxs",
-	"FeT2Yx3jsBd9+fhjY9hbiXD4NmdGpLj1vQvk+PbE6wabNkJvWO3KWqCNIlUolh4TIRd1etSO11bDozbK",
-	"muWTRj6FPWlPW8olvYA36/geN5CXeo6gFxLdOBqPoQ3Z2lLsCaLCXNBX6XkOTS8Y5BiPZCHSMD0sInEm",
-	"FzZk0VCh2AchNljx8O1ma9b6wOf2tqw2eADrgqW3NHFAPLSNkXaykJtf0wa9pJrhcWgHiXSbgEw8IOAx",
-	"dalXmARpbgTk1/Arx0C2vTy3uudpoF9sesvrIa3U57ogFMCObo4lcQ82am/lPStbbNzI2yQzPGOaJei3",
-	"ESl5X1CYgHXloCcywmDHeoyEAozBuSZxknPNE5oNQcOKSYd6j/Lupty6mqfFtZJszmQ5u3hDDg6+Pny8",
-	"1yfuHYee6rwgup7lcj1Mbmtir0zuNsNxaxGR5a1HsS7v+xu5MH0s0XHvFhccGYvp0qx4d00aObPpE83p",
-	"r+GsrBBN8CUzTJyfWdXbJrVmssFVcnb6Dflzn/jB4fmLyOPu45//9v/8z/sXt+7s/drOmk58RA56d+hw",
-	"hSCbS2zGsHKYonWHfnWHNmaBvvL2uK0ot0sIvTHrvo4tVFLdLVL3LRX7eFN0eBsX1s1Rz5DLaO0Shu3Y",
-	"V7aQyWwfo2VriAf7SrX3NfcvaG7FwlILrDHDn/Ar1tzUjF4PQSAd0gkbTmXRFMP32tNg9OeSVFr/6Jzn",
-	"t3U+bhnAa5OUVw1N1ueAIxtyMRy7YJRVWay9XfkebKc2dzswkoar2mwUrcT2+EsShbdt/ZSbd7Me31Me",
-	"zPW04BaRDqjxtb/QlujchMPhml0/1luqd7cgXyjg3pF6VRSmG8wxVcrWzrgRqng/roprmAjT6z590m2g",
-	"JDdbTVpSDCNYZFJMrF09NMo5jHWl6bIMxDLqL7LPezCpf/3V14c3wjneivy0F9830KVmFA4KrjouJnZ9",
-	"EPZnQaHcAvpcZ3RJRiwM4nZGBA/qBYd9txmJ4/5oWhPp8pei8aq61a7BLGPOQEyW5Pdk1CO/I6ODn/92",
-	"fUziSjKB/d3+5BPO4oGovmf+7f/8t+uf/ytmU399+OWXe/0a+AC2DIGSQRc70Y5vt6WRDeb00rUWfHrj",
-	"WoTv/lw2+zHaeQMYw02hWN9PJckpKrylTe0YTGz+ZLmKJEtCMyUJoMvE/zGu2dXaVgypGtb+I1jWDvpf",
-	"NZvW7mpQ+8e0Um2yTYUrUsbS3M7GeD+hp5vAEtD0Vc2VLNS6wJhVoRlIfnvnNz5/Kxc4vrq9vxtRt25z",
-	"Us7hzSblYo07vinMcVgzt1jfd2Uh6pOrSXxuBjdESK4MfOubuMlCUg05RAZuiFJadZ2vIFgBR0IEqzJI",
-	"0iozeD1ua70IrG0tTuo4o5MGkSQG5IIheKPiiMQAcVB+ZNc6p3MsaQMARfB0JhGMyH16b34SbAIRWPC3",
-	"HJq5Gv7umyqENZgOne057g7EBWTMOlum3emSlCc0z5fQHiwkWJ4HIhZSD52RwSxSDLBAJEbahtsf796E",
-	"zNYcyrPyGA+M7RslHfdc8M6wjOpptDGVdnijkMqRplz4NJ54zFmWsbw5SWfGqBhuGa7onHhNyixUO5Jj",
-	"4l3NQQYLxVC89OYE1BrK0KqTbD7P5TWfmfZVJQmu0RPhAKXdYQ+i+M2FYkpDU/dhUuJpQwxjM2jSFQQo",
-	"4o0KFrW+J8EdXT0RmymYZdLbUbB/JPv7Zqu7K1yxGpf54pQ8PXzyFbEFMQga8NSq5XudcRehTMHvCMXC",
-	"LNwY92lnEVDoOZPWM7ua8b4mp/OFhFApmnFbPySyRSwaqoFYUMWWDBmm+sK83Ei2RBl1vrbIB5lTzB9v",
-	"CKyBB6wQs6lKSPzPe1bI3Tsz3EBL8r6Q2iJOYmgYgqM+6fXWYgo2hduafr559+4twQcgpbQSefKkAj91",
-	"2GtMNddcNyERXUxlronCYFdHZdz5Ma00DlXbgix1H/+352dO81i6YK2wMUe7i1wcAc+6ZGzO8iP7zJE9",
-	"IbElpYEyslmYgl/dHIOIwA0W7MrBOfqp5QV55+Aiuat9010bytYUBmHerx35I0LJP128eU3e4kuG60nE",
-	"I5HpMiLxvtE61f6g6PUeJwL+YfZTIrNiZr+KB8LczdOL78AZE+MT3P56ZF+nM2Yfh5tMywp8KBBsXmc3",
-	"r40re+7y8bdwCn4v80uzIiAQRWWqio3rsQviQnvQEmckI8uBaoJlbuv0YOZXdWfv4lu/d3954/Ihcq7R",
-	"bZqqTM1zicZhmsVkMeVZaNyp2H6OSYwovCgESohs0ISrAFfSkFshq+l0GEbr8ulKZ/oxiQ0/mLIsjQei",
-	"JsQDi8AY+si2EJFCjLlG/53MiSrmLFcstd5COhCtuu26abgoMw+9y5Np1U4TrA1mPdjJ70Q7buRtEb6w",
-	"x7eVBu2X52G79rvvffOwg6XcuRqOGIB/uvjCjrXSOS3BynWjjIpLksg8R8fc7jYgidVoxL3V31aO93ko",
-	"vdQzPkqxF+W56G4wI36JtrO0wCCL7Hbw7RssJ9uEKSe0aNraAPEdgMzQCNSlaQXdHVJi/Ofw/MdAtPF7",
-	"H3PdrNy0yMG7OchgS9vMJce6l+6qWZ+QZbZsmEwN5W5/vfwunvqGgi+B+J26Jg1DNUsnCwVGkS1cGxVi",
-	"ugbkAGq7ItmxfGQMW2HR+xuSh2+IxUZi5UfafnzOmmP3xW8rF/rLw0ZUqy2zS+BQDteo8oo1BC28lfZ+",
-	"O8gjxtJjwoVZHYBvMBoCRksD/n2FRK0fdzsbmRmRzcWG8+cuX32RV85HGLruVzScf5ChstEQV7lpzdza",
-	"NP+CsfQTpHlvWbsgpJUNqtGUquFM5mv83htzwN9SpQhVJFYcQBnHtmBqmA1uDoUPfty8z3Ze9ZRvP8Ab",
-	"bJvnHj9pC4nz3dTVbAbAesQ6mvvUl4TVhRss77wh+WV9xEZQDsPXFr1jUY6Et4GVw5V55p6uEK518Rqr",
-	"ESDb5e/7sQWX8IaEkdowAzZjBVWfDNqav5gGT/zL+PncNvGx/OI2Xqn7WPy7Zh0EORBaOvh17yfHoHHr",
-	"MChRT7vr96pxV4qMfQcV29vkkNWomyWqa8wZNiaIiyuZXRl9wHAX3gjo1YavreSk4EavKQHiiNXBXl8R",
-	"C5UcEXO0/U8hqH6zYzy3uM43OCU9BHSlEMXmCwRN+0kEVRnKRW3eLrE1eG9eCEPGS2TOe8hmvpUXsg2o",
-	"qMPY3RZH9BZxdXOJFe2bY1m3RFs5LwRCKzecVDeDNa5XbZiReaeyAG50Ikyk/wtS2kRdtQaxFi+g93+6",
-	"ePMaIKrt59OL74BG3jZ5u729vPT/bPvOFunecm34xB143vYxBudFEFzQgDqIpfZaN+cwEm+MhtsuC7uS",
-	"Me1Xzp/T9YGB4RzKxYlKNJ/NElwhnB74KcGSVo0zyD/nLHd5ae0tGhtuedub1Oh0a72AreDb7yFj7YHR",
-	"DLYN4ticwLICE7Bm9W4bEnoLBvkpqWVI/Da95WPM7kLZfLBr3aK3kdytXkKjcS/DSwhmal/Dciv62DCm",
-	"J9uFc3nauYFSlhNae7x8nNEDU7dtI5rCqJBGWXoLC9OKIGtNLC1jlEoWeX+W3XQtrMfBOtbfpv5yusb0",
-	"F1jQt4EkvpmDN6XkBbPbuJy3yrL8nOOIq1i5H9vqVzZyy0VjsdRX8SxVdQQQXNy3GrYxUPSGyl2NUUVV",
-	"f9+EXjHwHELeIQaYQcxPvHvrtMftka6qql2zomap151Q0r3NYjUIiyTUF4rcSG/ercZD3glKqCWpWhPa",
-	"COV7fUQVgaeMIhy/fXOBxQNR8Nz/iacf98snFdbOgTBDF3bYKY9FQ7WfXXBsrQQlDgS8Zsts5GwM6Nch",
-	"mMaxrdpYxoWVRVdvGb7YZAI2F/uRIjyNCFUWEw3gR8aMpYBaoQhv69e4p3DIe49n3KwiV/3rD+LVug++",
-	"eM/urpVgzFsQrYrz8wbzFS6K9TfKnGCkhllxhMu1rbQ3bN1D2YEIwyhIXPlptRKXRbXwwcmAbMFFS/D1",
-	"rf1uVek6lHjaxZNuE6lav35h7GrVyVi7Jg27v13iZCha/COqBpvuV2NOzFbaAPaubqeYb6vD1iFJHiwB",
-	"6CKRGDrp7LZ5IdTRIuc6SOY4Mqfc236OSmzUdMZFS/MudHReCPW9bRu/wA7OsX34CswvykOlwncn2JEZ",
-	"r7Mz3mOa0i0gpDcB9T2EzlVSpJsAfNdsc8X88AlUr5VFvcExFTwcLu8n1cPuusjgHl118uWMEc2udRCq",
-	"DqnCrnhuMqU5TTTLPZ6MpiMsVIgyn2F1Cc1zTieGbesiF7Vsyb6jCGvSJf9lMLju9fbMf782//mD+c+p",
-	"+c9z8+XBi8Hg+qsXa+pwvpOX7Lbm8FvoUO3lqbWACsrQjC34CtDABoYCHrhmOV2xJGe6Sy6mciEIhPia",
-	"s3JsdOeECqtxANg9qNgtJRPsMfJF83EiN4LFwhbdjjO5RWynj4Z3riEOQCLsDtVkwTPIzSw9mcdEwVpZ",
-	"pQYVTld7u0i5JjqnPOveZQNLHnm4iUGCXPe+YPbnpgIc1Q1oXPOciftkQ64+9o0gBqbfP7iHb+ngvqlQ",
-	"Y6uiitUS4uZCyuYSXeZAaEkuGZubHZ9xkQb4uVwRbeZEOpQEEdO+YHjkwjPKWuJgfdgS+9snFrRa4Lf+",
-	"6QoScKvjiA2sq1mo80IkzZUy3uUFKw1bCy5SuSBTlqVkhjHoVJCDqNfruRWB4rAiQ9BPmaVMafsAoGGZ",
-	"NW4OF7lycTTbuFXC8JsbjcTNYNrlJgSwvv7kB5WfggGGS+bO2A2yevWO3CFU6E5hP0YhvKUeL5pgnqOd",
-	"phqRqCY0VYjsYAHag9016SiVkvy3MTawDBMB1mfMuh78FQaQNqgkdzNHhPWDSWP5sHJnwr7X7v/b8MJb",
-	"cBHTWSYhOWudRdUfUUItXRrLLJMLFUa3uEZAWTcy20oBtBAbPpNtA9GrA7+wvVS/PQv6rP7iyoVepKs/",
-	"XfjRVH94KTGiPSBan8DnvG24PzMUv5loOvAZbVPh7CHzb2BtFa6ca2Dsg+5cglBITWccAWzgYbUGhYaL",
-	"YcitVx+4XaBBM7wiWMbdbj2y09iEXCCY4aQ2fQmqPglJ/EG9rTtkeyyLKo9pzltULjbUP+uCMIM9a18s",
-	"uBrguJFBhea+inXPARP6pM0yZKM8hdUzUJlrEz2CYxxejqKAnkMdrbf3lO6NT/Ze/PjT1x/3wo+H23w8",
-	"6Ddj33zbaJw9IWCeLYRRW2TqE2Jnk/2XgANh//1hPp/9WMfoedzfpHP+d3v/w48/HUSP14ynWh12y+xM",
-	"qPl6sK/+pR9jQWBAc6rDjZKLZxFRnetd8nuS9MjvSHLw89+uG3BXe21RFw9aPuiykzbzN5dD0tuBppsO",
-	"znflrauld0EEtQUaE0tSVseBciPu+tv44bXOsErpI6pc1ZKW3MqO7i2+aD+9gPdx7NWai9sW1mwNHb59",
-	"BbiH9e224WhlRndDjMh4zHImEtZcou23z8jvCdZpG8tCYHU2W7Vvd9/+cUsyDw22ruHXFkCH3RU/Z/vE",
-	"wLZ1Pf9knt9cdM/oJM07YdjYh98++0CokRCx6L1fh0fKVSkOkVBbnE5zEddBsecskVcsX7rx3KFq3p29",
-	"n2UCwYpEZjOmYekeKeKg/RI5Y8oGJ7SyhwVc2lLLm02z7hDXFmvlXoU76xfdX8wgz2FrR1p4vj5dHLF1",
-	"1vjU10albGaYhUNusk/WXMEjBlmNhptinEEDCGWgk9ZL67YvqFvb8Fox2/p0blD5V+70KsvkgmtOs5h0",
-	"zk6/wzCQRArNRcHFJCadU/NtQjM+snQuHFHIKW1DeArt++1Zpm/yzDdTOTBBk7V5faLqveG021tBqnt7",
-	"g/Rd7WKLrb1lXPTG0gzOchIWZ9iqdMmm4LXXtppuDSkLQU9IL/ImcB8VYYTxuxVia1WO7c6M8pP65tqQ",
-	"fcsh1vhIEBH21BXB3/Yegc1qTWqy1Ky5Yjslvug+RlRe8vmcpceEAcK51FOWL7hqBjVSxWxIR2qYNzT+",
-	"3/7zh9+eP//gNJ5KHecAh0atCGhNw7lTSds7YfGG4LvBdCO33HZt12+n7b26OC8ZVXoPzW+KYB+q6xRG",
-	"UgBIHrmyCqjVHVEfssg+A1EC6108U8ckpoWWMUmmUsLbM2nRpGALlZP71IxmGVMAYEXkeCDoSMmsAJyS",
-	"sIy2unHjwBiFUZdqIBDQoNw8LkiM8xr6L1VcBZ8REiwTB/vX+N9/6cO/S/yv/aTgXzO5lvzLL/trbN5/",
-	"PhNX/1z/3K998Z/qn+sPXFS+OIFhfQRLc1LkXC8vzImyBYsYzVl+UmBtshqnN1/LnP8VqMQR+QM8izQ3",
-	"AWekxZzqEnAdqiMSl3EvcUTiMPAF0DMroS+AvZnOuIiPiWLMIsdBygqX4pEi8fWeO+Z76EK0mwNXAsgH",
-	"DKm89lOt5zsfP4JxcSxXpxSgk2FctqoA9xQCjlRGRzK3ZoBAjvGnKjLHXA0Erfy8kmQWuTK8XPsAcbCy",
-	"gDrzSJESen4g5lARA6JwiWJgSAVgDq4jCCnEpiIyzyRW0rliuQqDfRXclEJcCrkQKiJ/PnFACKZJKire",
-	"4YEYiC++cCU4zSa5GFyqEU2q+8UXpAS8J1z5ojDhXAYCUGsnhtdD1RqWc+qiD2nOnMqiSJrThUAEsHkx",
-	"yriaspRMCp5S8PdDW+W64+KYuWnL6TGscmIuuMxhSuYbqxlevHlLNL00y5izhAGI7rGXzwVjqVuLkeEm",
-	"7wuaYdz+nOVKCodOZQX4LnlOk+lAWPAtkYYh1d4qlrM5o1qhgdVQEid8xbC6v/kNOZXiyvBvKdRA7CEa",
-	"HMIhYvixWR8l6CUbJtDrO+6+PX9xSh4/fvyUdGLkKEfEC0/xbjQQxPT47btTIgWRhZ4XuktKYQEOMaYd",
-	"mOG5CoZGtydIlVTXjAgBUPHHsZHGGTl7/vz53ldPDgkyMNXFYdtYDISmfU1fQ6CrgHeWx2Y41plsK05L",
-	"pmxZEK406VBrTcPiJqH5rCw0RE0rFToOFVe8rzqXUu8C6IHhqHFkkUgoUWbWgmUwIyvXEmRwygagE3sr",
-	"cPUV6cRNIssRQuYDhi4hTobyTZlFSjKpzAUw7DDLIqIQwE4jrzLrl1CdTMEJssTeTFvA08ydzs1oU1uX",
-	"Gw5OKhOkPX7NkGCN2DFJMm4EAKKmZslMQ0rzLCN8IiTsGEwGqjbZMixmlhEB9BZiOGFObOqBIjRN7Ru4",
-	"9a5aeEn+lK/aqFzZRhX5epvCARbDSsAJLM/bETkwLP/LQ3JycXp2RjKmNctVRFI+MdcUooy7ht4PzX+O",
-	"zH/24ginRBFBEyCHqH3VnC94l3RQ/CFxebzj3S75VnAIhoagLvRXmNaCIDCa+/wDdyENPzONWGg6mBOw",
-	"lYFAUhjvXx3EJJdG1DBUQ5EteOCJhRqAGDOzuIINhMwx6AD7OTID+YAfyAew6n0gk5yaXf4wEB/29vb8",
-	"/82DITslH8K9Ih8ALwBZFuRRwnbbLYrQtgg/mjsV4cMVYL5SRjJ6/D5o7bbTkGuTD+Tl2asL8HxNcutc",
-	"+oDtIzf3PCngRVEN3Tpy1kuoTMHMhW+oXYHdV2UE8sFwMqXpeNzYLXK3krWpY4+b4n2Tx654ayjR5yyR",
-	"eVpZE2VHgEIJ+UDgD640MCUzbZAggaSa7gvHgHAUsP3QxkA8r8gyJONKI0PHg2BreqQzjuwW1Qp2rZkw",
-	"13UgGkSfI0LtCZvKDIJ+vvjCkBkp2BdfWEl4ZigkNKtZ2nUzGQiuYAgsJezaSORcZ1AZKgciauQTSFlS",
-	"nqSZpx3Tz5g23Mlw6DdzJk7enhEnSTq8GiBhckyovULlzA3FLoXMI/LDj/FAdFw7j7s9NPoqeylwoSAY",
-	"x9yON+alPqyueeXsmWGqgiWaoAioDLE+ce7miMxoZhgmolQizYdTcCUvmd0gM6LD3sExsizuvrWcxgh1",
-	"dqVwQPD04y6J96dQP/evhnbtQwle/HPGdM4TZVMp9uWcCTrn3SWdZfFAgOwhpO2kE7uFg4XYdYTpOWgz",
-	"jgohNLjZSEFWwJ87MWwVHth9++3v/qIgvQNp5UDEFgbXUMoGiOYYtafYyiFNiM1HhklYBNuRTC0zM+KT",
-	"GdGXT3sHG9FtWXcCXDTe9zduv79fzUYhnXiwM9iBSqsQqDWVGb6/e4y9n158RxKWZabb1ni5EYlFbJGA",
-	"sBb4fLpUUE0RQmg6IGoSMmU0ZbDM8PXBrnPa2o6+2neiXmyHU4a0mPHcBMTrmntfsHx5BDZyM7Y51dMj",
-	"niLzi3EQR2cpm82lZiJZ7v2JLSH3zlw+HwE748rIt8Ki+4ZLDw2hwM2Vs4jkyFctkF+8b4/aK3c9iFoK",
-	"Ta8jCwhutCfL45HbBoEEho8e9nrHeHiQcHE1EEYC2rOtjQqHm2wktSLzSUpG6uEJIx2jf9is/1IF8kLP",
-	"QJg7Z+QPf21d3WhKcgY5hLxcI3LJliALHvb7hu8+6fVQfTF0YyAGGE8kaIZXabCD5HnKDG9zyN/xsTXl",
-	"GAFxYgZiT7CV1DJpjvBrCdTedGYFavQVe4xxripShlepUHh0skAVRtxIxOHyScFAjPV+LxD8gGpfQqwJ",
-	"KL0ZT5hNE8Ro4x0ju+acaZovAyzwUMnFuAtlU+O7vW7PwkcYGrVztPO42+s+xgiKKdgDHJUzf09YU6iD",
-	"UAsjXvV7vQCneJ7LhCkFRCvjV6xLXoP45Chf1+POcCnO0p2jnT8y/Y3tqmbZ7Pd6tjaJdnCwAcX7i01l",
-	"xIN6k83Mll0Hi0BtHjBMsxpPsL+mZvy4MLNT0Awo9U5oTNk5+uFHMLvNzDYc7bzkV0wwcOVryNH9oZy5",
-	"QjuM4xlrF/ltLs35Z4XClAd2PXeAnagP1tf3GB8BJGhgnka8NdxHL2R+iSY2iwWiiM4LpfFMrezJKzuy",
-	"G/fEjGt/nlFe2426N3Jl4W0PD7H0wbLN/DzWbkLIqdfuxLspI05Y8bpaQCUWVJFRwY1Um8tZq2Nvm9vu",
-	"2LtBbrHQ4dCNnOWGH5H/dPLq5UOs/7tQo9209Cg+taQx1uaeUk0NPyfU/upsQJZlGX5Z5DlM8Env8UCU",
-	"boH6rjQf/XMc1C9CjaBvw4DgWN16b8xbj29+6wK58reCXlGO3olN23oOOQY3kDQPLbB2V7/4AqzER198",
-	"UTcMr+h8MneqCzBVzGUkgkHVgDHPjawAmJIYKxIHoYcxGFCsKGvZviCj5UDEPA1/7JIXPANLQSJnIyMC",
-	"gqx08vrZMYnNZQbBlAvrPUTxXst4ILxHMSIjqaeG1lZG0CV/YkvFADKXC2s4mFOlLKtETOOBmNMJe6RI",
-	"HMDjxgC/6/62dVoAMp+RMQ73uPaCkcXAOyXxnkDSuWnaSEb4kJmInNP3BTsGWaNqpEsZhizKfCDgF3Dg",
-	"0tQuCFwj13mE+lCv6Qq95EqfOlgzLysrSIYyXGIHJGGXlXVUzW1od4FCf+jHqLnZMkvi/tr0OeT316SP",
-	"i23XZCXIeV2bASpaq0YDsLWV2tE0z7i5bZWTHZX3AaKJG8Zgbk5lAG3c/6v9v6S6oXd/89b1ruU99P2W",
-	"ThhR/K9re3GV1MuOfF7Ek14QR9CvRA80YHSs9m2YdvV+++I9SDbwaq8ZmMfYbn2oFLD0Hx+Q6cHJhZCb",
-	"Br73RjCYkJkl8gDgfYdteN8fqK/4DK8c3PzKt4Jacy5L8aUW3PKFzEc8TRkEKRz2n978xjspX1GxtKNT",
-	"vxA39/z7FMNJuVFglwEPt/z6x2hnxdgIEAatUAuqzB9whR5AAsCKDqB/j7nukjPkUt4lKUXCopJfWvgh",
-	"cytSwsVAxPjN0CrDiHYE6VtgAM2Za2mNbIgonCtsrWljykfw6FvkqYe9X+vkfyw88iu/Ur3Dm994LfUL",
-	"CEf9B72DJw4YzhxRo7WAY9/GB4D/xqVsPvTt3AdnSas7uvlOOlNXYiTxFOuEEDqShQ5LV1klLS9E5FJr",
-	"QYC3DoXAcwPGo/mciXRPimy56SaewBR+ldcRhvZSrtXIsSjG5yv5K7iSwdED11Viiby7gfYyrbuBW1w5",
-	"X/kJjttcqjtdPIyFV4QajRhHHZGc2dA7zwRrWRNWkBwILHNPMx9cASVegFWWZcAyLtBjBiURl4ZfYzND",
-	"OY6PjaLIiG/I81EXCQ+eBE2XEBhjBY8uObet14ZhfbP4hv9ktFdIbXfBMrZQeYdZsgNtDQSE10MUutFs",
-	"Yx9wGJOO9f801zTbtQTIL491mMRzNA8M7eIf2zJI1p/tcuMK8Ug5j8ZATJgGzwf6t118FNeRdzy42T5S",
-	"PiyJ5sgOAJmAqoEoK+l1yRsHR2BtWpac4jmdUi5IQgVio1xxxVLSOew9jQYCnC+xzfdQQ/u2df+cQ6po",
-	"57Dft2VaRzn84+Sk0jHo2ZRp79hHcQ0EQlqenX5DXh30SKff6/d3I2t3CIK3Lt68dVkqhtjvgjsxBs/O",
-	"0G5dfIRjwG2FSCHkhPBtGTjKIZIC0yhUiSIJDdrDooYKDL9m2wRbxEeEapIxqjS86jAyMCLJHjaagRES",
-	"25nR66H7ZTjOKQQxYDMzqTTpPyG/9S4tF+fuhjIQpGzWHLXMnNLqJNwQElkIDTWWwOdjm9q1o+BiiOE2",
-	"w0s21+E0KmGDwYOxjc8xY+i49CDFryO3RbsIF0LdCLCnkdRTrFI+ZCJVQ8FY6sowHtnJmOFW7ppZALB3",
-	"WQeqLeLpTrir4on7KWieywVavKAjMxd423R4DCYo04iNssGx2BFEENVlGLe2yTQuvGAxXSIs6YQJllMI",
-	"+Yld+Uhv0IJF3m2SH5ByPnfU+I4SBLCxP8h0eW/Cgx+ZZ/nVUG9fpq4ivBx8Gl0iTL9DvzX0/1Ima3I2",
-	"3lI9DWtlYTGuuMYcIR26OsVok5vj35ng1GshOJ1KMc4sHMDhQYsxvaXLTNL0nZQvaT5h+N6TNgugijlC",
-	"FL9iKafvlggIddjvt3nZeoGNrPVcaK6X/6ii4fN6uJjNIwCljTrJKyi34kTG98l9iIvzTOruHHMyHsKQ",
-	"QmcMgufA2QCdqatJbGf29vUfCZ/RCdukgL3NpH77+o8PqYLBGPbtKjSYdEdcUDRntXGEwiw/K12/+M0y",
-	"ByfQtiKCp+jBjR7ulD/AlbooA2m9GOhkQzKj+SVLrYhsNTQ7c8jqkGLMIV1hIEZUpKgwgCYBEERkTgXL",
-	"yIhlcgEKC15NH1dEMT4EIn8GQtAZCJnYvs9CCTJcTOvWS3TT9b747hNcb3U1+d31rSIbPl/oX+mFxnPz",
-	"8Be6DDZvZ1OpRrXX7vDZSjqVmVMxJ1qSgx6EF9rchyCPy04YVD2jMA8ELbVDDOLF21zecuJgyY06FJff",
-	"x6X2BtqV0/V2u2QlArFL3gZJX5CWUs/MomLp0pfAoz8Fzj5GYHiqbdC3IuiENothicJxBWVkIED7UqC4",
-	"IWmy1UCIoksXCYmJPxmkPBRa8dSW07CpcSwdCNQAZY6EjFC0dtsABWsVxzSfMdekU+a72X4g2nMgDntP",
-	"12t1waL86vS6cmxbKXa9BxmAK9Hf7I21Nqy5TyYB85mLdrWFXD/rYJ91sAf3WofJApCq5nJbA/YScoGW",
-	"PGYDT8l9xfG7muhfSUBCtOQNsl7rhmXDWmKbqmQZkkNSjLEWD7rW0IZWFjO3tUVQIcUC5E34zwTLZION",
-	"/IYC0tYIR0tTWuew3/dEWQq22yUnFYaCwKeZFBOWr84MYsSeHoEcC1m3XJExoGkNxDkAr6vQRQgJ0kIu",
-	"kHmqJhKPdQzuwwt//8S9WnT8ExP2tRa7c1/Z/jOx/kysH9yXWk+5fFB36gqy0j1r9BjZUMmW9WEODQoA",
-	"RCDreF1M7Hc1kKZfYdDCCjrWGqW7svCfte9f/t5915zR3RjOsME23VINj9qo2RUAmPX3jJwFyeym2YFY",
-	"k55uK12MqE6mmKgnBemEHe0e+xzxgZhRF5QEPlaHRGZu6dQITZ3aoKxrnFEraXkNfkSTSxTdSlmlM2MU",
-	"TAOx36Q4IkIOhC/gaCEJZnOATeLapmBWc1+PiANVHAiAIAWsRQc6Ck389tnN4KTkTENiAQBAMzEQgKL5",
-	"93/9LzWHcQk00w0XeahlxnJqkRzjCAXEgXCmiJ//rd8jv3XA7eTbC/L87Qm5+H7v68MvySsML/m61+s9",
-	"C3Fwqvt4vBobYONSzOxznsIaRS5ObCAqsC/wtYslcHFjJ2V6JSytw0jF/AcnphrJVsHWnjgU38r5gsgL",
-	"aQE0PNJoFbWAuOjzgaBG97UFPQ2xJ4XQPIOkYIt0HjYOSbo+OOeY0IFwz2FAAuDMmK6NQO56cfVCbQQJ",
-	"2nvDdqOBADQNEPNzicg+zkeP2JO2yCWFQjrM6AJCYTiDPeZYkBMW7rD3lFiTsUN9RxuPy1FGCT5Edx8I",
-	"e32GQuqh11d2I6/rlEEsgLUjiI998v6yspEwQqVsomYNss9OqRqOuY53u+Sw3z8ya1pZc4vhE+5mEPRj",
-	"+qwcfVjrYXBuIZmfYqjMGhPTd1VozV+XGtIE7/iJwweaAFtbSBI+SFQW2lz0zyrLZ5Xl4UWnc5QRaDMq",
-	"TgmK01KCCus93qDKBDA++z+VHz46HceSxAfy/gdWHFen2gIf1PyEDq+BauR4zkMxEEIudo8C9EZX+MPz",
-	"MY22fiDI8C52l/twxoHoCKnbMAuUp8zDjtugLxWTQW3GIkaOgyUtQrB+agWjNADPw1ktKMYRgmHK1mlX",
-	"zuNCFAtjQHFiQy6GAFAEIE8CLG6qSKZ1jucRJmWWMohH7RIPj1tpf0avse0hnbDhVBa5xY8JBBiubDtQ",
-	"rwoXEHciwuokCDsHA+uSw96hr6KNxYkAPsI8CAb8hcybLWvO5XsmXkjE6d6OrZVi/M7NGZnrw7y2Sadc",
-	"5SYziYntDjfvGMyJ6J8aKSb0uoQ5qrfPF3zwZB63FZtyesqt/6yF/+KsZHVXzFWl9ljeqwp+Ewu5X7f4",
-	"iSLx2zcX78gG73scrdrEynUYY1b5CnOJLVGIV9iLubqABzsQ8R+fY9ctOaZRIgC/DFb/5dmrCw/ABW6R",
-	"5NINL1WNjvXXsj5+cGUcDoTPqkAXyXodoaSHd3FIh1T1gfSFpoF+9k5/1h4+aw9tSP6fC2pkkuUG2nev",
-	"bmqLM9lKJ6gJ/BlCKYR5YCimOoi10RIygNb5L17Zrh+QAGAXmzwPdv6f0QHu33WXZQHab/WshKEW7gSu",
-	"O7/bOAlCEQPspOb8kcTmNfqTetAlb6XSiOSDKWKQx2UeRrhgsRyIsh4RWuuNelc/865p1Byvg186/d7B",
-	"7vFAMAA8ycupQzpiFJhY8XaHQRm+EQ5wBAMRpGCWQ2fXNNE2m682rkcQAaxBKDJ0ZCDcQIUVTjDMA0Mm",
-	"uDaj7UHmYs4UWq8zNtYEwjTGAxEY+mMARA/QEMr6UcoBtFeq/KmpXMAUsgzy2LrkxBoASrRyrPcN8+PC",
-	"CLio1HYO+/0NZtNXDj3nIcQYbPwXElzszBpoFuqsCc2ccaW288d+hwHHAo2lQN3u0yC7fnx47ZwrJr9b",
-	"cpdjJHHAqfZ/Msfm31t212dR7FcYKAiXx1OjqPS+hSIP1lnZlplVpS97pu9BCItcSVHpYWrCJPt4PTon",
-	"UtImeLU51dPSsgX/PIzF7YSoOUv4mCcBOQtoXAu7W5A6V45oI1LWj78IGS9Fz892tl/+pr8Rbjduf5Wt",
-	"mrW9c6U5SAw4tyUxJQBEKTOiO96DFwQFIiPAfEA4GKMzgrteapqhGQOw4t/Hu3XUnLcyyzzGB9S7KWHh",
-	"GsEkoRpITDp4IY/KiBYAvDCibx1PktBsQZeKKKZJB9yzFlYckNqgOpBTd5WEkiZ6NxoIMOtNqRrOZM5i",
-	"543AqvJQA8POFerKW/gFksiZLVYwEC8gzsTIRNURKcaUXU8EGXIStRQJO3LNQlUSLKuGOAwIu4EeFMbz",
-	"MBZC2X7BXEhxXuC7wTgNwEK3fTn/kh8oVtro+iIP+BhXZJGb34XrOujOFr6hiGOujyDeCaT7gcgLCBdx",
-	"+UUQ19RFeTCOSGy/79I0jY9IbAVFjJZA47CPpui6gKZovVPTPhn+Gu8C8mej882/4H8KB+GqEpcgKiW6",
-	"iRm6OeWu7qh/OPT5SYEFHBrNDufQ0HPY3FWOdxvUxGPLlMqhmBvgHh0zLOHXCNZp7tD2sIr3iix50OvV",
-	"SlRGvxzHxM15wZoDPEJUx38MvKt/RLEXWYs5tlDuqxK5Vgm7xm9uZ3fMi9aOpKBU0UqGNFTas8BJpBMU",
-	"0isRpyylQ3//GMKBBCuL6hkKheaIGsDVI4/7HUjXjp+WNPiIUNLvHQzEjFGhgkI+FeIO0YWFsJkyIqiP",
-	"hgVURoV2QZI4srJEh7X9yBxDDw3nZAiGEwEkkN9awt4XNIuIlpKMDf1GCJ9ddETxLLPuqMiVxLLhi2EO",
-	"TzU78ojkdDEQKdW0xOLS01wuBKELuuySs7AADOkcXl/vuvqH1g4RAESN2FJaUB+LrQ4GnqMwjmFWKFfe",
-	"DdELzUeMZ3X7VEJlHTuLkVkSn5buEL0yOmIZIP/RXAFPH4jOCnSSIhOJVWaC0Fs8LHohXZkyWwdNTc2W",
-	"UahOWEbdHrtLwtOKOSso2WgL8vyGBBVZBuKCGdFmpUiLlmRGL80INSTjKzpmiP2Npf3M1ShLoWIFIJAE",
-	"lC0iMIPhX7I5siSP9tQ/JBATghGg1mr2CIxzYsLyec5R4qDk4puTvf6TL4/CujAItegX3wiBc5orhGUb",
-	"CCYS6RMZSEdJsphyzYia0wTjP2fMHHsrO9kVnVGtWb57jB0NxOnFd5WOgI+VFXKUh4XK6QILCI2WmmHt",
-	"uQs6Y+SSLSOHa+4nFaGU6x16rvpUimfviy8cjNpAEH+hvvgCi7DoIhflvPq9gxp+OowChFRn1bKlFDFA",
-	"O9zeczbP6BK6zQsWHxMhiWKJuRVmRUuPcXU6zhKtwzkdQZWa8MGgbkp1up4AcEHGGZ9M9ZGtNQFdQ+SS",
-	"GbDZAxtYboVN14LmMwahsw74PoeZYIy1zAkA1R32ngJeGM77nOl8uXcy1iyPdwk3mkoJpTXmgqspiLQc",
-	"PER7EH5tOzNn2RInQ1JMB08MZfGvT2WGAViXbOmvljk6nRjqhyTqKt4dCMNWK8Xt2PVc5to82SXfwyhP",
-	"UWrZe7ecsyPiXy7B+AbCFnSyZRExYtzpOivHM0Y6ZkTssmMoUVupJdBxDBMpTeyKqMSkI+dYQHL32Cb/",
-	"x3VxKrbx3UG3QDZHzAmincNeb9fbiOCAckW+ffdi72vSMfQRgdfM1dnD6zij+SVEfkENyHQXY54OD77u",
-	"DUTHTn1Gl6aP94X0eJDxYCc+Ji9fmC06PX/5AmteMZGq3S55yQUkEJixwoEcCF9HEbJEfxM7mAHcHoij",
-	"MxTO1eEeZVRcQpsq/KGL88JDjnUEoF+rP+KGdckplO9S3hGJgI1iiRTI1kzEGl9QAtBGGX4IoPjkwny0",
-	"IpD5UCum6AsqXnIBNQ2XTJEPoKNACzF8gPdjVwTQBai4hx1fK+tervkSXgeGVL6MrK7yKurUtuZhtTKa",
-	"e0s0V73/+7/+76RXa8EXK/MvQ4xgUNzYHqb1P0A7uAhDDksiZNlLyTxrM3WZLysvuB/ImCZa5mW1ftLB",
-	"R1AUO9jFkol75E0A1miYci4XXXLuJAFX0nMO2icBeMEKhQc0wDKuyNxXuwuhxImuL7iIjkIyqquNVLdj",
-	"1xlrgY3UegjWq+Oqb5YV2aCbWg/Biu12yblcWE5rq30Zfu2lH9MSRrWY9YE4M7wHYb/A/eylQNurWMIt",
-	"ABEBH6zU+y0UI3EXzEMpS/iMZgi1CgXYHF0DIiyASsUH3Sds73G8i6lOxNC1QlGRKofTKKEuyWv62hDU",
-	"MzH20awk45csrMWKKGNYQdavCOCDQKYXFyDEWE4Dxf+q1UoMkV0iLq0yk3ykiLnTnrLCycLXRVgDMi3s",
-	"kqZuCZHUUFc8slxD/N2WJDbraOXwkr2jYmBkH1+El4qAplkfhCF2iJQJefLw0GHv6ZcoCwWl4ywm69wW",
-	"U2xd6xCPR/PzkMiCZwbWGAHGzRqDlIjr2Pn7v/4XBLjxYjaWRreEFcmWzKFSrw24Mq886fWsyI2fQ4yc",
-	"XQdiZRg98DT0VFswVdNUv9eLzBugscBFRtxUFJNsCUKjsFj7FbPao28RapwhEJ8Ue0hN0Il47OFJ6RIk",
-	"oZHEYGpQmdDPElQmfKSgUayBkwfufihHndvSmNbo6VARoMwpLnm3243dvqFN8BpW4Wgg4jgeiN9YWQY7",
-	"DqjufCq1BKlg74B0LGtdZaG7A2GOd+S0JlQoq/zAkf7I04TIURhA8IGtjAQ3z7Po5UHU6z6Jet3eQa8f",
-	"RRuf6D39uvmJfnTQ7Zkn+r0nzU88jvr4xOHBATyBp8f9HsHLT3rR93u93mF/zQMHjx/jA4+jvl3QNTEG",
-	"58X2GVmBxP8nttxZNdeZkwEnzYuBwDIQOtppwhA6tcacd8e6QduMJjhaJYdeN657KL3Udmw+AQLMKrTM",
-	"Eimj9dcG55eS+D1U9SmH6CV3MzppmE8t/WXdgJz033rR3rgXPj4Y+EgRBO1GO04xqjawuhDA+bHOfIok",
-	"0sx5xsVLJiZ6GhqUQxi+T5dKeF7clEEIpg2bOOgSkHJfJaZj5E1Lq3OrzQ/Eig0nQm+UfcmyBo9MbzfM",
-	"uiiCsJgmW8HqQsdgPHAVDLlyeo/tzUdeyTG4m3wAGmrXVeOFUaDbRNKMpMwYFXAY2gXvQKBE4YCZ80L8",
-	"u4Rl/hy48yuEjpRKQ71o4Wz+wWUOPRjFprDpMPGywXmxRUWq9Q4MR2+c45k6A+ARjNgJ/bZSRK1AAJpd",
-	"vX8Gv6v4p3OWMA65i1WCtq5Q6S1knfNCPDSIjBnWelr9OX7m11CEyvoD8PDe6xW778AaG0pTqbfi7CvV",
-	"22PjLrrkvCysMhD10nBODHVWLOW9bKsZHEHdOItTYavF89z7BMOCN11y0hg94SruYKsTbmQU0CjtIFyU",
-	"YqVqTLVagk8Klhni2XAVFo0Joim8ff08jDIaiGcsN7SljmTjKM2fT6PQE1FkldxwNRApS7ghWUF5PQtB",
-	"yIXZSejMFw8ZiINu0MuiMsS1Sd5HJHaTio8Hoh82kcgiwww+72StPf643qPHLOHCBsnU3jgM37AeDLMY",
-	"M0O5tYTALZ8xblq0lifIMK+19aQbxj42x914EKJKZrw1VNjTgDg9ge8BxxX2FtVRZ+D1SpcdD1S8CiqT",
-	"M3TKmKMzoskl2DXByBVg1QzEl+HiVNLlj0gMmJIK1Ccz+a/CZ4MsfOtcovaoROhX8on4OLXdI+jbniFD",
-	"ryqRdT50Dg4ytO6CsuSY+NxQS0vi9czy3MdE/Bp5phvd2qor8PNn9vnLs8+LKjgURnwW4l5jbZCX2kt8",
-	"98AbSwxK+gPEIDTHmPbNfaU1gDVHNlRp3FO7XQIhj1yR95j/yC1NEwmr89FK1TILXOWcZaVFqFNyd7kQ",
-	"CFEu8zCHy3OLMszQWpitHl3WKiujb7W/OY/qYbcDsTY4iGyODTIrWiXRXK0IFlA83S63CzhEDqv5jLlw",
-	"Se/vd6I/QLkBqwVXLE+mZB0cnnWAYFq97bWjGAtIYl0oi3e7xJ0Fu+FlCDFENGjFsjGwCE0vGQiJnoOU",
-	"fL8QN4YJWTx8iyuGlU5ZltroIdMXgNF7mDbrWrNH49g7rAhPKzFBYZQOeAvAaGHkPMMTLRCNY36G29kA",
-	"4ylVYaOWlbupISfGpcTZrbcv2wW8Exu5fwOgHdUvhPh1M//y8ggeFZ5X6h/aMJrPKfufzU0Pr/2mqT+N",
-	"WgaGp/cul19P2Wwbbr5BL7Yd7f/kfXIf71kzHpdBCUguI0KTXCqotYz3zWUs24zmCFTaFcUZwFY2MQ/f",
-	"lWWktiwIaL08LUE4cVyImOIYAGJJlsEKa6R0pGJrBfVVsvLy7NVFZeorjM0FPjhfTjU9zo/ofnLkHlJH",
-	"qK7NZzXhV188sH5Lae203pvCACHFLbWEsNiRUgVUp8ipSOWMYGRyx4cfH/S/JiOu1W55lyb8igmMaFa2",
-	"cLJiSc60RaED91bp0BLZ8thHWUA8CYSag/vViIQ2bHkgplRNEeAPzGmZnBjhbb0Y9s4M9YGQBKDtX0iO",
-	"gr5vcHjCNkWlumM3QE0hwkn8+qHgPgs5D0984G4TioclIDSWVLRMksWnvessZRnTrDV9OWdX8tJGbEFL",
-	"xzZ+qox26x3slgZpC8hiMbwAeGQggtA9p8rl0G5q6RXKGU2k4hkM15GKm1Pl7yAEfPutUe0a2P/h6mrh",
-	"snxOJP9VYP+arbj7NcmZSNVD4vQqC12xBpu3mhweeGigJt9AyLERwO35DyAWY5XJOYtt6NiIKhbG5UON",
-	"AzCwocRy8QxaKr1EsXsjLg3+5XDNcwsuUrkoO+z3do8hG0vnMnOhqIoDpO3P/9YnF89IZ0FzwcUEMy1+",
-	"/rfH8CXa53YjLJlP6EBcTNliSnNNEvhv5+ziDfnq6696e307ne+Z0hPwv4OZ6mCvr8rGI3Kw91hFA9Hf",
-	"66uInO8dqogc7h2gwnTQuyYd9B7tgn2CmYWk6EYsF1ZVPXsKPWYQSRQCFR/XwPPR5JFxr6YMROw7OCJj",
-	"mimEGL7iMkOzH0IvgXHTofMHYFQDwcWVzMB8CGkyY8AmxmDkhVzZHMAFtrW73BYeDUSM+wHmTFFkmUVc",
-	"xi65KhehS04whpccQPhuOauBMAf7mMQ6L0SC2eEOAECEJwKcT4AG0BE0hyB17dbCMAQ4k3CtiGXoUSAf",
-	"QiRXwqLVohJyIQbiz6cEGHla5ExhaEalnEREcjYpMvNOU2WJZtUURrOGj2wKq7wf5JVPgafc1IefbetY",
-	"R1int/61hgjM5xDhZuhHaESPCBdg4b9aG0ZrDsY9RIC+RIdCrXfrX1jfu5b30Pc3ckFmVCzrdzKq4XFU",
-	"CWiECaY6INLrRul+bwYP6IfYAf0KdED/E0MH4H1aZy1mOYcAD638jCOfuiDSkjR+hhS4f7HoWc7H2kkc",
-	"NvPeXWio1wM+LCtm1Ji52Zwq532oKtAodT1kRXfQtk0vlUAD7DeuBeaWbCEiaU4X6DorZR2QUo5C2cEm",
-	"06IRFlkZJHMwgqfdfIEyEWLqWFEI19lHBLnWQPTAW8HApp0xW3Qe4w4huz4zvPu8QRgx4gqMehPzW1sN",
-	"/jMP/MwD/3/MA/mMTti+upr87nqWVRlgQ+5EQyEHQxo+s7GHqBxdkl4M0wHaHRGkYvfMlUzfLClyrpdA",
-	"FUeM5iw/KfR05+iHH805sh3W78NZkINdYInroB5ZEPLRKZVxtdsNUBQLoRrS1l4gEk3Ylrto6IEPghsN",
-	"F1VBk3ZNVhs9E1csV4CoZaHMg5Lc1QT1sL0Q+Xy10T+fuEI8YNQIyldXoSLZounlMgSpCn4U+UCDIO7H",
-	"882kxE2q9GLdayvdNJfYjMq4pBLrpF6Zxbf+PmloGOGVASPYYhh60YLnpERyJnOZ8YSzcFkd6GFDq2/P",
-	"0KoVPm7NWg3sgF8xwZQHYoI/Z0znPHHT4oqkMvF5cZVUONzWHz/+fwEAAP//",
+	"7L1fcxtJli/2VdKcOyGgpwiBENXdAmMirpqSdrgjtTSkunuvBz2oRFUCyGUhE6rMIojpluM69uXuq18c",
+	"4dd77ffdCMeEw2/t97ufwfNJHHlOZlZWoQAWKFLds9ZETIsAqvJ/nr+/c84PB4lcLKVgQquD4Q8Hc0ZT",
+	"lsOf50zn66dTzXLzKWUqyflScykOhgcXLJEiVURLsqJckwmbypyR3LzCxax3EB3k7F3Bc5YeDHVesOhA",
+	"JXO2oKapBRd8USwOhv3oQK+X7GB4wIVmM5YfvH//PjpY0pwumLbDOC3yK3b2bHMMb+eMJObHB4rw1HTJ",
+	"zddLqucH0YGgC2g43TmU/5Cz6cHw4FcPy1V4iL+qh998c/bswIznLGWLpdRMJOvfs/XmQJ6SJONM6MNk",
+	"LhUT5JKtSYcS8z7hilAykzIlyVzyhHWJnlNNFvSSmV/MgnGWjoQZIlOaKDplJ0QxRvScEblkOTW9PFAk",
+	"6LM3Em62uF/lfIOxHprBVtadXr9kYqbnB8OjwZeR2Qf/2ay61iw3bf7pj08P/0d6+Of+4ZPeeHj4/Q9H",
+	"0dHgy/f/4cBvl9I5FzNcHKF0XiyY0M07xP3vhKdMaD7lLI8IVWQplWYpWXE9J1wrkhdCbdvFspPb7uaZ",
+	"7xyGfV6IbWcqL8T9nqj35n21lEIxOOFf0fQct998SqTQdjXpcpnxBA7Aw2UuJxlb/OYflRnoDy17fINv",
+	"YafVqb6i2VTmC5YStRaaXkdklUsxI2aLicwJJVc0KxiRhVY8xfOIzQ7Jwr07En9/8frriFCCR4Ks5ixn",
+	"hBJRLCYsJxOWSTFTEaGCFOJSyJUgU86y1LxiTxyR+UjkVMwYueIyo5rBr+8Klq+JpwV4b1LJFBFSE7M0",
+	"a3MP3kcHp1JMM5581NWDg8KULPLE0B+lqWZkKvMJN1QRfsQL3aFIpEjOrjhbsZTQLGc0XUeEjgT+ZK6A",
+	"LDShZMp1BGQBX4a7AQtPF8zcH3e3gcYozbOMcDEy05/NddeuxwsYRsrEx14QLS+ZIBlNLhVhV2b7VCKX",
+	"jGQcbjoXJL4+dFfnEH5Tce8AqIg5CTR7nucy/5jDdh0TZnruETONiUzXRNG1IlJkazIC7lQ+NDogVKSV",
+	"TTbE4n108LXUL2Qh0o+97oYypf44lpeEXXOlYWRv6DqTNH0r5Uuaz9jHHiCsKLtOGLO3Q7H8iuUPFEmk",
+	"mPJZkbOUZHzBcbQXLL/iCftG0CvKMzrJPvqAU6rphCpGEirMSk7MXtNkzlIi5Coy9NFNgyfMcHk1L7Q2",
+	"FDCVK2FYR12SOvSiVNO47NMPA6ELhvZWyldUrC1/UD/LjX6g/EHPDZnjisgrlgPTtpt2V9P9RtBCz2XO",
+	"/8w+6i16xZXiYhaVnC3y/ErmhnbLS5aSCaO5YUVmVWqT/u677w6fFnpupIyEarYpW8RfwdsxUnUqSAzk",
+	"JCZU65xPCs1I5/zFKfn8i8f97m4Jui6G4dItc5kwpcx9eS401+uPuYLfsSw7tAIFF8tCI8Oe5IxegqRb",
+	"ZIzIaXhtTuwKqBgomCLmho2EnE6ZSM1VAkmhJLZFxiyH+0aoYrmUuWbpK5Zy+hbW42Nzf7gSDxQ5xV4P",
+	"zSjM5TAEQ4qaBE9okrClVj0QP20fZghP4XsqEnZmlg3GnqbcvEOzN7lpQHMjKE5pplh9JOXbRM9zpuYy",
+	"S9UJrCSMIWNTbUQ4okHjMENiYsYFA41iSotMk46ao1yWZcilpYAHF0zPZQpHcRmM44eDCU0uxwnNknEm",
+	"V2MtM5abEYyXKIOx6yQrFL9ir5yih+fXnA6qD4YHqSwMTY+MRoIPHPX7UZNeiGKk2fKyzwUX4yVVajzN",
+	"aYLL8MPOtlu3/HFmMpcLqRKWUqV5wvV6TLPl/MbT+BQeeh+hMGI2fc/3jFg2ltPxlO/75oKKlGqZN6i+",
+	"p3NmhL2VUXzJlPKsyPFfPGpXLE95ok/wKug5yxWhRj9Ir7iS+RpULM0W6qaxQD9fGwUMxnN9hi8dletL",
+	"85wadbcQ/F3B7O9mt+wEWLb3rK/Hubrfo2COcsauWKasfo6PPg7fG2waSfDFfKzeFTRHRvkB518WOuMs",
+	"HydSXqpxem+Tdf0oXYAubln8vfSVF0Ltud9XLOdTyzE2KUH12P/462c/GgU5eMWogCKleUo6Z6ffPjw9",
+	"/bZLFnRNDG0ldEa5MHqCViMh5IIbZQLU6x55ZqnwoB8RaiQh8s0Fef7mKbn47vDL48/JK6DC5Mt+v/9s",
+	"JBKa8YnlKGH3eMUyOpE5XNUHypJvophWIKoZuRQMR/ew4u/9N3LyjyzRZkFL1vRGZjxZ78nZnoMC6Zma",
+	"4UtTmScscnxLlRxrbxa1OdUPZzj7MJYWb29nEy1ebmASLd5qZBEt3qswiP3peYWCN5DrViOoEOs2b1RI",
+	"760obBtKusdbNbrY4s0qlWvxwj40zsi4SOeyTK5Yam5fM8VTpJMGRGw7+QJR8sZhvg81nz+GG1U7Gk0H",
+	"duu92X4do53EYjchqJ+T6kncvIeVPWve+s1jFF6wnXv4fRMVdsej7rNQfCagIaM7wAI3747nAf3e45AH",
+	"9Pr9/lHDGXsqaLZG/Xcnta/SazSutzfhg6CnbzS4m2fqBwq6su83rliRcv38yumR7edQMoeaamwU4RVV",
+	"JJWCRYT1Zj0S54XoJTmjmqVxRGIwBPemXFc+0+Uyl1fhNzkzw2Rp3Nv0xkRmBLLBW2cIrdO90UYLujk1",
+	"DTW3U6OiVLNDzRes6dmUacqzZvqxpLnmSZHRXEWEiyQrQK+nzhieg2mJKil6jc6lcNuouU84wejAXz/b",
+	"+9Z9fClne+4iu3K+0FacLDgtG6ysNgPbctNYT2lhhqe2HB60NStDYbkCgwiaGYbWqgB32AmZgUnVkuWR",
+	"SHKuWc4pmeZyQZbFJONqzlIyK3hqXm4QH2mS5CzlGghNNBI5mxWZ+RH6t8Llxes3YFkgy5wlLGXQFG4u",
+	"mazBi0Mzc2VTsmS5kmIkvKs4Y1Qx68p0K71xuhZcOF1vU1AAKWLP7TVbWGhksdWVfmEeJ6s5Q+tHYhon",
+	"iSyylFgTsHsXVkuQ2PAClsZmM6AvWJkYj2SMHoTVfB0c7YmUGaOiem025gw21eYLFYjDcBTMiAzjAZvi",
+	"CRFFltVnMKfmqAjw6a0oWqfcRJopvmkFje6oF+yW9+rHlRk1P7AfWV+3npvhwohSljiHojcQgHFgxRWz",
+	"EwstBJuL14ZbVERM3KlgtYPG0GvSOJWcecsj3jpdWs0SuWBwnRopqDL3xkggW/YRfP3uGbM1C0YV3FlQ",
+	"C8Ot/OANa+Z/5QjdifPLFJW3pCp72KXaSXbLdW8CSsABsKwooF1L0BCHJC6lPcPzUNyLo5GIA1HP/FKX",
+	"8sx3XlAzdIpLYb7zohk0kjPzyxUbO9F1jCb4iMReUoO3mOJpQbOxkdbMF1YkU9DKQgqppeCJ+SXN+VTH",
+	"PRJ8Szp+zQwRtAemS+wmgGnMuX61NITFnJtEZ2viG0EPi1mllcwvDdMED3nPdUi4Ggm3S4RqwsWMKT2E",
+	"VwRbeWSMyuSy5A14LamA03zxzBvkwb1cIjXMrxTluAeKDPpkIZUmhsQLPRJOKsE+VFS6qb9jSs9onhIU",
+	"U+DiKNJRjI1E/HfP35KHV0cPdc5EquJuj5xVrjopRMaUCklHxhUYLwhVI+EXNbJ30bzs7dtwVaZGpjDC",
+	"jSBHfVIb50iAPzRy/WAD5VZ1gKjjtzlD7wKpEcyutaAIIwI36iZVraRBHwk1CntQjVoQqBBbTmmoTsBT",
+	"wRkttQYYiTtF5qaa4xJcVEuiooPrQzOLwyuag/PFTAeu7isuXrop4RduXvDpJU0uX09fwNTgi99tzg++",
+	"/4oml6eVOcLX5xd+nvjZTvbCzvW5nSr8eBbM1z6Nkz7HOcN3r8uJ43iD2cMXz3AJEClijjDaz5rok7PN",
+	"JeGDRnRFguWvhFEeblCXjvrB/24wV54akQ2kpwZ2sZKHiqfmGPunUF8ztxdOxBXNVET6vceGnPR7T548",
+	"uVGVe/LkSUWZe9w8Kp3L7KVhDmpP693FnK3mNAdp1DSCjmJFOmcXr8kXX37RPxx0HZPz6JcJVSzjgvUa",
+	"eFqTqjWe89m8penDvpHJVcsXYP9Zy4dXNBdczPYZkHul7YhqXNwOr9pObSCVWUeVRWvk3LhV50XWyLtL",
+	"4m7EoY7/yDShWS8ipxkXPXI6Z4seGXxBOkdPvjzqkuMnj7pDEh8dDlQ8AjkUYWUTtpYiJT/9y8DwoY4d",
+	"d/fEPPpIxeC89M88IhfPTkg8MI0QvZKG9QnFksJQDveYZ2TQIpy3ExKfHx7jOyR4JTLNjwSdyCtGfgPP",
+	"Oy8zCKKAW1uRv/6X/2WAPR8fHqmYTGWRk82eR8J3fRR2fdS/jolmovKK9a3C04CrsyzYcOUqczFLdhAd",
+	"mOU4iA4G+MlM5yA6MOMxv/WvW5J2s6lH2IL565H7a+C/Oz92fx0f+edM++ZkFLlqMiy8XtJ3BSOXbK2Y",
+	"NmxWyZx0zDX+/LjIy6u9NJRDzMD+F6BQHx8NWqFQx4ff/+Y/NEnZgA3e12NO0MqCUkGPfOfUpZxRM0hV",
+	"1fnsw9Qc8sxIf4lk0ylPuFE2jABYZdIqRiUwkVc050a2jcHjyRZLvY5Q8sMbrdAII5hp3XQDzxmyF5HY",
+	"6kWgWsZTo05Gtl1wuIJyORJGuYQjUyeOSCbGVDdqNXa6hQB90D1dZRm7LD60tPBt/JYEhoyd2pl7zrwD",
+	"c9rPd9DkNwh3ZnPiZ4IsZMqyQ/auQPu1zFOWD4nhODQnf5z0IzI5+j6yX4xlzmdckD/Cd+8KmhppIHHP",
+	"RWQy+L7iv27nprDWjEdNw98uBJw2sH6ziROU1FPz2SmmXiRoZW03/bqj2tSv+40sqM75tes4XOuIqJ/+",
+	"tfMP/+//+Z+/+4fuX//n//un/ysiuVwpIzYFz+F6V5bsztZu98KimXX3dbBIXKr8jRcpUVrudTPS6WYP",
+	"TmQlKZvljCmzgtOcsVQuIiIMjyHLwIQQuKAQqDO+YrlqFFchACLwB+PzSFa8amjmBqhiNDvD8w+Pev1e",
+	"v9mEbJ3D2N+ua/jcP/g+OphmdKaaTGqJVoROAICEA7E4bjQBCeksQK2RIC+4fpHRWdP9nzN6xZnSqJLd",
+	"1BAoORdzmoOBiKftwPtRGIvQaLzzPsXqUjzjSnORaLy/yqkUU9QjdoXEWPPMjStj5XRzG0B7branwk/j",
+	"nF3x7YfKat/uoeb7YXh7ZehHjUAVQ3JvGvkreOh9dCCaro/lyuWCkQ4cUqMSScGcgl4I0M9vXMyl5I38",
+	"AfEGHsVhpYHITVfmxPUakVkuiyVLyWRtyTEXyEcVLzlLe3CTWdo3ZlhNp7rihK5jLvlsDqJMSGUNJ9As",
+	"N4osDKZToC5rXbgV7ta9pQUYjFE3zescHnofmCpUuoM++qVP2RW3HubO+uF1N3JC83//ryvyWyLICuZN",
+	"VEIzdtsJgI/ixhngU/Z5cxfGEkg8zbLX04PhH9uQjO/rEuibnCnYKUGoIJ7g+vsWBReOo+cwZ/YYosEZ",
+	"ff/j9kSrJqQ2BPS5xccHtrB58CNunO0PZd5KU120uyUX+Gjg/q1O45vTb16RRJZqVWmyqZh0vAFng0A6",
+	"eWfcinJ9a5/2FMyysxvfs4+9jw7wMI8TKlJuhIutpMk/8UARlcicWcNrTAstUe1AZDmZ8mtDoKFh8Ldm",
+	"/JKRDugg5tShPdQsUSAObHm525qMITU6daNsomVurlJcMdFsg/udXNnOESoKlzy14oswJy3jysg1kqhi",
+	"Yf4RLvo0DuhMs3DjZ9X+Dn/nX9m8yG9dSBwjhRlTBwwIghEbCAo2abs9eIsBMg5sKhzNGEzgSOHvdFS2",
+	"72QupWIKyL+eM1XquhGhmZKly9ByfjwDVIAx5ITQCdAr640qD6LVlCcMz2Nam5Wf7p3PKxgqVZfI2KDz",
+	"P7NcjudUpJnd5M3DZR6pEgOFIR42IpOsWM7IJVtq6yzPZVok5hpxMeWCa+bO5wlq9W5dBCM0l4rdDGXA",
+	"EFIk4F5a25TNomrcq1O7Le1zslV4qptXv4nGOJG96U7Wl7GmWW9yk4oOWWX3oBNV3RumA+80CZReL5p5",
+	"i4CXfJ3AUdJXzzWiirmjouwF1ogNZarR/gmR5uKFtO7gfaA/W/z1C4n+NDikoAe1VyYnVPFGQMjaOtNR",
+	"QFABMpYLspJ5qhqJ361MM87AdjNnLhYLmq9RhVzynKnt+jY3WhC9QoqUMCNGlzf6gSLWT0HojNV8BFKw",
+	"rQu4ReYLVDOq9DiEz7WnS9+GbzWTpoyCU7+CkKTakBbHnqiOq379Jk/Hhp0fdsCdhghhUMEKN00r2Out",
+	"5/wlV/vi2259gPaw7dWOUl2AEOxaj5Mt1mi0UjvJzzxKluURsjqEWS34unfzkWnaCrMH4SjarDXqdvuZ",
+	"qV8LtqGMlrkSUk5nQirNE3VCaPARgGH+iHFdCwYmHSHRHCRzw8pzKTWIBROaXB4GLmn7AHpD+/CIc0uj",
+	"irArLKyAIP5GK2YggptJQb/IZ73Oc0uNLqn7dluZPgFhy5V25s9bdOzMAs3oItTbbtm0N2Q1mplyOrvt",
+	"mD3EAPayGQB+1O//9JdObVPBXllZ6u7Dysdb6+MoM9x6Pii9tdz3AG89Dntuzg2QrYl7QWGcPbxwy5mi",
+	"vLXNmFM3dYD6c0L6eJ/dUbsLGBierfq9CZbSD9Uf4mCbtqxhcDA3ble0QSAaz2FwobYS1AtvMajbkgB5",
+	"Ctk4euRpCYQCP9oSw4rHaPuJTzwOGQCchtL1Avdr9WnDeS2cCIaNKOy2uJpyzG+w1XPXaPDT07L94Ntz",
+	"35WfvGWP+4LTK07BO/D0Vbwq7dqbUp6xdFw6/DZx6qXpCUNL0V3A0R+7pEqF6DqZe/RY1U6x0XNdkLgz",
+	"e/9+tva7NJbfEJ10M83c14J4eyPdppXtlmYyq9W3NCF8PLU71G8bVNTqud+hsjZRvGc8K5ptZe4XMoW4",
+	"CEiKxI2iCWGkXFhll3Q8nPG3lhwiBuf/+V9JapvonpAj5DFo7OndOk60Bdzteehj3EMmvslw3muAQtiA",
+	"mA8KcdntMnLCOWJIrMvM8jBVoUp7kOvtkl/OMLEFa4pb3MLjy3eaDtiGx4mKGRtjXA7EZt2kWJePNvxU",
+	"8Zu0yrcXziB8PzAQ2R5rYw3ig5qvkj947TSyLVvSPkatsleb+p07OZbjQQcROTqcUIWJODZ8iic2r1bT",
+	"m/XrW7mUu/20jcdm5wIGCev2WMLyIrWyBtS2q+JHemzntD06qH6M21l63rJr3WDhQasbQxS+DezPubgk",
+	"VJOJ1HPCRKpOHMQ/LS3qmVwxhYj6OZ/Nzd8WAUBzZl/1Un3lLt3NeJ37HEBoZUe1Ha9frKa9d8iLBmio",
+	"4T8W5kHrIA8VojxInIJNQViQxhiZaDxEaCieY8hhQxYSom+oIHOaTcvwRU0z5wC2gQVV3EfcPSHxlK3G",
+	"/vKp8VTmYzWIhyQ+eqj+NEBvDLhs0Ok1EtgzDHtOlQ0k8IsHw6iYKCFQpewhrkI3Gydp5ICmYbVUIuzy",
+	"P7NNA3zlO9ew/fEFW5375l/I/GIAasPvGM30fM+7Wgp8blbyEg9Ium45ZOz39e8P3BDO8eX66bNdNR26",
+	"gJ42wfVtYCsVQfRK5Jy+kd2uyGHmcqLoYomYgQCG+vlxKxTq9/W0qP3o80fvG3GpZVLUNzkzB//WFDPQ",
+	"wNqznRu8EZitx+rF1ndgVGBzIU6IkKs6J2knJVXxizu1hPJJo1nAnrTnCuWSXsCb9ZRANzCGelixF+/d",
+	"OBqPocVU7imwBrBNh8oskRWh0QxRyPFEFiINI0ojEmdyZTHFhn/EHiXcYH/Ft5vtkNsjE9pbIdukENkW",
+	"zbCncQoCFmwQg5Ni3fyaNugl1QyPQ7ssardBTOMBAd7hojUxbtrcCIiO41eO9e97eW51z9NAM9z1ltcg",
+	"Wxk+6iJskKl4N1bKPdiod5f3rGyxcSNLWOZ+d+3tPJQfnEKW0XwGsbamxSYhYvMa3caRoNyAq2P67/91",
+	"VRHRMd0ByhQQ4GkfoFnmcIbu99ukSqmbcnFUjat8m5iuZ0yzBP2aIiXvCgrHxLo60VMfIea7jrRSkPx1",
+	"qUmc5FzzhGZjsEDEpEM98qK7K+i5tkWulWR3QN/ZxWtydPTl8aPDAXHvuLTWzkuo68F+1+Pkti6oyuRu",
+	"Mxy3FhFZ33oU2xJy/E6uTB9rBLi4xQVH32q+Nive25Lfg9kosua8BOGsrJJJ8CUzTJyfWdXbZhvIZIMr",
+	"8ez0d+QPA+IHh+cvIo96j376y7/908OLW3f2bmtnTSc+Ikf9D+pQ8dmCNotr/mT82z/BvXKHA69UFZYV",
+	"QztjQAkY8aFl7EfwVnuV88K89BW80wyF+Ld/sng4wQyRQxRat44jC4IUIIJlGy6xs5rzZI4t2juCgOGL",
+	"Z91eg+RguI3Zxo37GG2jG5uHfGeGg1fe5L+XiOGSHdyYUaaeN68UD/ZIS2PZ7fub4ozaeMlvjp+BkHlr",
+	"+jTykX1lD+XB9jFZt05fZF+p9r6FhAXNbRhxaxg+M/wZv2LNTS3o9RiO6ZjO2HguiyYw9deejdkTnUoL",
+	"wVjy/Lb4hj0jKWwCjk1btnVr4sjGXIynDu+2qTS0d13dxj0TohXlshW0yL/92j6/JblJ4MwJt+YmzKQb",
+	"RQ2X6G9fFF7j7WvZfEzq2MTyxG8nMrdAaaHNoz2lsNTspuRVrtntY72lgeMWdBFVvA8kixWTwQ2m5CrJ",
+	"bMclQyPH95uiNMZq9ntPHvcaSNTNFt+WpMgIfZkUM+sTDB0KrjCJ0nRdgkhPiJAo2tyBO/DLL748vjEH",
+	"8q3oWnsFdgfBa05dRQFmYBRIm6IHcuWtKNQoQrzIgq7JhIVhOs6M5jNhwmHvNqev+pmIpb02zRSziTD6",
+	"69V46d2+1aocYHxZTNbkt2TSJ78hk6Of/nJ9QuJK4Jn93f7ko6vjkai+Z/4d/PSX65/+FVOHfHn8+eeH",
+	"g1oaHmwZ4OJBFwfRgW+3pcEa5vTStRZ8eu1ahO/+UDb7Pjp4DSn+mwCp380lya3noLRPn4C52p9RVxBs",
+	"jaEYkNwt/o9xzUbdtmBX1Uj9H8FKfTT4otlM/aHG6b9Ni+8uO2+4IiWi8Hb2+rsB4O/KDIRm5GpiAKMm",
+	"tQ38B+bRHgKEz98KCISv7o/6waSXtzkp5/Bmk/6zBZTUBPYe10yXFgFUWYj65Gqyo5vBDTjxjYHvfRN3",
+	"2cGqwGsUBQxRSqsAoo0EksDbMIFkCRW3+pYzVJlvVtKFZ1ey1ZFOTBcTPitkocbm/fi28cahpbvFyd6S",
+	"jiCGtD5jGFsckRjy/5Qf2bXO6RIr0EE+QXg6k5g70H16Z34SbAa4VfhbwtyMZFG2XJ32SHRsBqIw6qxx",
+	"yYzqWTEFDkEtHYkgK103InEhrDtk7DxLcW8kLiBhhfNU2LNXMpeE5vkaRgxbC36lkYiF1GNn3DLbEINn",
+	"ncRIbfFAxt2bUrU2Qyw3HuOBK22nFOeeC94Zl2jLRttm6WUzWrycaMqFDx6Np5xlGcubQ0MXjIrxnjBy",
+	"Z6tvsgBA+UM5Jd7dH0QYUoRIpzenT6hlANx0gS+XubzmC9O+qoRwN/oZXYUJd52C6CpzxZnS0NRdwMt5",
+	"2oAtb05oeAXAcReP6Be1vicBFdg8EbtpqhUb9qOpf0vetd0+NVfJahMv/+KUPDl+/AWxFbIIWj3Vpsdl",
+	"m1MBc5uDVReqh9pUoNwHO0fAM5ZMWtzFZsKZLRkJXkiAsNKM24Jika1q1VAezGZZbikiwFRfmJcbyZYo",
+	"o4G2Vv0iS4rZTxoAj/CAFat2lQ2L/+HQit2HZ4bfaEneFVLbFNRI6zFb+uN+f2uS4aYwCNPP796+fUPw",
+	"AUiIUEEEPq5kfzzuNyZK0Vw3JQK8mMtcE4VBCI7KuPNjWmkcqrYV2uoInm/Oz5wutHY+27AxR7uLXAyB",
+	"Z10ytmT50D4ztCcktqQ0UI92i3fwq5tjgNTeYfavHJzhDy0vyFuXP5q7Yni9rRDjJpCTeb925IeEkr+/",
+	"eP01eYMvGa4nMR2YTNcRiR8aPVg9HBX9/qNEwD/MfkpkVizsV/FImLt5evEtSHExPsHtr0P7Ol0w+zjc",
+	"ZFqW5EWBYPc6u3ntXNlzl01mD2f0d6HUFJUhhBZvaRfEQS7RygjVO8UhZAAoyzVRMsmouAwTDAVBk5pB",
+	"ruFuTTbObaU/DOGtHoUPgdrcOXymcb0x975Rz5rqVC5zidZzmsVkNedZaOmqGMJOSIx5/FFqlAB00pCb",
+	"2idfNvQZEaCl6xTjIVxgdImtOSGxYSBzlqXxSNT0EOApGAwV2RYiUogp1+holjlRxZLliqXWrU1HolW3",
+	"PTcNBxf2yft5Mq+amoK1wfA1O/mD6MCNvG1GTuzxTaVB++V52K797jvfPOxgKahu4sqDTN4OKN6xJkun",
+	"uFhBEE9+IvMc3Z/dfZIaV2Hlh5u/bRzv81DcqYfulXKyy03yQVm1/BLtZyyCQRbZ7QrA7DD+7BNvktCi",
+	"aWuDmjGQeBTtWD2aVurDQGyj/xye/xioPH7vg2eataEWGKib0TB7mpcuOVbOdlfNOsgsd2bjZG5Iffvr",
+	"5Xfx1DcUfAnE79Q1aTiwWTqjsStHFtv5eSrEdEvWGqgOj2TH8pEpbIWt/9OQBeKGoBokVn6k7cfnDFJ2",
+	"X/y2cqE/P27MQrlnmCAcyvEW3V+xBnTNG2nvt2PAjKUnhAuzOpCPx6gUGPYCFXQqJGr7uNuZ+cyIbFIN",
+	"OH/u8tUXeeN8hDFIfkXD+QehhjttiZWb1sytTfMvGEs/Qr6OPasfhbSyKSMnVeOFzLegC3Ym83hDlSJU",
+	"kVhxSKJsc1dV0noAushhoXfvs51XPXeHH+AN5tlzny5wT0SqdRimLLGp/ZY+hjFhdeEGamKlO6IYt+Ni",
+	"goJavjr5B5b1SnibNLC4Ms/c0xXCtQ0Vs4mz2S8Rix9bcAlviPyrDTNgM1ZQ9VH9rfmLafCpfxk/n9sm",
+	"3pdf3MaxdheL/6HhY0Ewm5aulooHDWAMifV5lFnKe9v3qnFXiox9y2VWZmPag7pZorrF/mGRV1xcyezK",
+	"6AOGu/DG/JVt+NpGcCFu9JYiYo5YHR0OFLGlDSJijrb/KayQ04wSyG0dhhv8qr5kQ6WU1e4LBE37SQR1",
+	"ncpFbd4usXey/bwQhoyXmbTvIC3FrRypbZKAu5z4++b9vgV6cSmVZinZkoV0z7RZ54XAUggNJ9XNYIv3",
+	"WBtmZN6pLIAbnQgzovwjUtpEXbUuOiFeQO9/f/H6aygpYT+fXnwLNPK2WTjaG9hLh9G+7+yRt0NuRYB8",
+	"AM/bHyZxXgT4iIYku1ist3VzLiXwjdDA/dJpVFJf+JXz53Q7SjKcQ7k4UZmWbbcEVwinB37MrHebxhnk",
+	"n0uWuzDV9haNHbe87U1q9NK1XsBW5VbuIID1ntPS7ItD2R3PtpHvZcvq3RYfewsG+TGpZUj8dr3lYXIf",
+	"Qtk88rdu0dtJ7jYvodG41+ElBDO1r4K9F31sGNPj/RBpnnbuoJTlhLYeLw+Vumfqti8oK4SRNMrSe1iY",
+	"NgRZa2JpCbMqWeTdWXbTrfmZjrax/hbYki0WtApgYJ8M/Ddz8KYI3WB2O5fzVkHXn0KecRUr92Nf/cpC",
+	"vRx8i6W+1mupqmMm2NVdq2E7sa43VNpshCFV/X0zeoUVgiAMEhFpABK6NYrwNikLq6pds6JmqdcHFQXx",
+	"NotN1BZJqC81vZPevN2EdH5QTriWpGoL2vItQDkcBIvAU0YRjt+8vsBKwCh4PvyBp+8flk8qrHUHuESH",
+	"U+yUx6KhOl8XHFsbKMaRgNdsWaycTYMQUnQxnti6zyWQrCzbfku8Y5MJ2FzsB4rwNCJU2eSWAPacMpZC",
+	"EhtFeFu/xh3hJ+8cALlbRa761+/Fq3UXfPGO3V0b6M3bBIiHzs8bzFe4KNbfKHOCSA2z4pj33LbS3rB1",
+	"B1V2IoRRkLjy02blTJvkxqOZIdENFy2raeztd6tK16HE0w6Aug+0tX79QrBr1clYuyYNu79fFGkoWvwt",
+	"qga77ldjWM9e2gD2rm6nmO+rw9YzFN1bDNNFIhFr6ey2eSHUcJVzHcSjDM0p97afYZnkOl1w0dK8Cx2d",
+	"F0J9Z9vGL7CDc2wfvgLzi/I5r+G7p9iRGW+ZTqKRf/7bPzkyg3k4OueDrisn/vL1M/LbMukHkJCXr/9A",
+	"flum5RiJGFBOY5XGQ2jm4lnpNXXZEbUvdgDowA6ES+i5VGwkfLVBDzKcAiAwRqyhTfIHzauHf/0v/xum",
+	"9PHQK6qx7K9FJm4gECM3KAgG8UW7+MIIbsqCDTvsXUGzkQN6BjkwUGwuxMoWA+yeVAthDesvRFivGleB",
+	"hqlEDWm0IzhxtaNAhLJBrd0hKdcywOflhYAooXpSRMOCII0jwsxKYBfLzLpurF8Vamf6P4gOXIeQ1aPy",
+	"fK3UUMtD60/bU2y//OIr09NFWvnuJXSJSamqv7i6hRcIH/LW8juMF7xFIqpdeYPvw3JQ8tWb6glsIVYV",
+	"I9pHMCBsLOoN7tXg4XB5P6o14UMXGZz8m67qnDGi2bUOIjQg+j9Bp7KRFnOaaJb79F2aTrA8Nmouhtom",
+	"NM85nRkKo4tc1MKWB46vbYlb/tNodN3vH5r/fmn+85X5z6n5z3Pz5dGL0ej6ixdbqr+/lZfstk6dW1gC",
+	"2msFW5OvKMP59pCOgJM3iEXgR27mloolOdM9cjGXK0GAd5izckK4JgkVVm+G2jtgKGopX2OPkcsWYCdy",
+	"Y+562KLbyVduEdtZVcI714BmkZjljGqy4hkESZf++BOiYK2sao5mE4tFpEXKNdE55VnvQzawlPSOd4l5",
+	"oJ28K5j9uakeWHUDGtc8Z+Iu2dCEKmbu/I15SUy/X7mHbwnTuKm6dqtK2BYVUxbEFrKxrioEr2lJLhlb",
+	"mh1fcJEG6fy5ItrMiXQoCXD/xC1I5EBGrjodRRvanqVIfDxNqwV+45+uFCZodRyxgW2FpnVeiKS5cNfb",
+	"vGCleXbFRSpXZM6yNMjSfRT1+323IpjQLcMc5DJLjeCLD0DyQbPGzaCnK4cG28c5GILIbnR1NNf2KDch",
+	"qDLgT35QiDIYYLhk7ozdoHFW78gHAN4+CLy2MIt9O2uUaKo6ER00FfZGZbeprHdHQBmxo21BVf6G3Tan",
+	"IsswnGV7oLjrwV9hyIkJZXtv5oiwfjBprGZa7kzY99b9fxNeeKtamc4yCTGJ2/wC/ogSaunSVGaZXKkQ",
+	"o+UaAZOTkdk26rGGpWoy2VZtqg78wvZS/fYs6LP6S6Arbfx04UdT/eGlRMUqIFofATmxb9AKMxS/mWi6",
+	"fFLaRoDaQ+bfwFJvXDkH19RDR12YW0hNFxxzUsHDaktiKS7GIbfefOB2cJnmbLbg33G79cBOY1cKEcEM",
+	"J7VBeFCEUkjiD+ptnXr7J5Wp8pjmcF3lEM7+WQclDvasNVSkBtPdyaBCo3XFRu2SmPpY5RJ4VJ7C6hmo",
+	"zLWJHsExDi9HUUDPoY7WP3xCD6dPD198/8OX7w/Dj8f7fDwaNCeh+qbRxfCUgJMBLFKJTH0c+GL28GUc",
+	"kbiw//5xuVx8X0+W9WiwS+f8Hw7/p+9/OIoebRlPtaT/nkHJUI8fa4ygWc+VxSbTQqAftJbpmVw8G5JL",
+	"I3jGS7lieRyNhOpcd8lvSdL/6S8Let25jsj1eMFF90/JEUZDwUcMYF3QLKuYFdElOhIVE8GJ7cImSFNp",
+	"TDqN2Xa7YffkNyQ5+ukv12iXq0kj/bbZY49aPuji/3bzXhel1T+AppsO9bclRagFUEKMgs1rKNakLCQI",
+	"ldkcabII/a3u5kqVSKpcgbeWnNSO7g2+aD+9gPdx7NXy1PvWIG9dq2P/Yrn3i55ow23LJAsNKKzplOVM",
+	"JKy5mu2vn4FToP/TXzpTWQgsZGtt/t2H9o9bsiBosHW547ZZtkoaccth7R9627YE+u/N87vrExt9qXkn",
+	"DIv98dfPfiTUSK8sdeXfYR0eKFu0p5LRucXpNBdxW+2TnCXyiuVrN54PKDD8wfiCMkRnQ1q0OQlg6R4o",
+	"53QhiVwwZeE/rWx1gQRhqeXNZmN3iGuLtXGvwp31i+4vZhBJtLerOjxfHw+pb92hPri8UWFcGGbhkqnZ",
+	"J2tgiwmDuGHDTRHJ05DzNtCXr2pkvu3F29jwWt3/+nRuMEds3OlNlskF15xmMemcnX6LQKtECs1FwcUs",
+	"Jp1T8y0IEJbOhSMKOaVtCE+hfb89y/RNnvlmKgcmaLI2r1uk0L7NQQqn3d5CU93bGzSDahd7bO0tIw92",
+	"1kJyVp2wGtJetcJ2wUO/tr74WvI6zENE+pE3z3vckVEUPqxmbavKtR/MKD+q37AN2bccYov/BlNIn1KR",
+	"8tRlxdjjBKVXXLEtsEgYPnMwg2QupdoWCYt2uZ3NuMxNLv3tZiMLel0pxzjeUrPpbZuqUaRerbIQKbOp",
+	"URO3WqGgZ/HXRo8olYjb2F+lbhQe1oSWHSPU+5Ivl6jNIJuGilMnhEG9C6nnLF9x1ZytTRWLMZ2ocXNN",
+	"qx9/ff78R7cqRqI9LGv6e8KgNsTcptHdchXuoBh4mOc8mO7Wc+JPYeSPtd2N7ffGDrC6fi8ZVfoQbbDK",
+	"HifVI/HRw+s/9XuPY/LX//x/mE9rqFOKpw0SHzrH1GRN6EiAsQDFjTrqEiyI1rrQeZotGE8pYZrQrBeR",
+	"v++NxOk8lwuq5Szvka/IF18ck86g3x90yeDocbdXFknFsZkOjx6qznX3p39FCBQdiU27RmC0uP5TcuTq",
+	"mdEkl0q5mrdakkzOOvBpJC6edX20gvm6Mo1uZBN8mPn68mlyJcjFsxPMMmYGUh4rOXXEBDxPcPAwbYy3",
+	"jdgbaz29rpjrSMQbufV7dSiTr8tWo1iI7QoONybADCwzqlgA0mqiZFZAfqsMU3Bh5kt7kUZi600idCHB",
+	"ISkVVBpAPK2QG+VyR2JnvdwewYLlqHAi/l9B7Tk/fEW48MsxLr+OI0wg7G+zVdKm/BqC2FUJXKuCuIQE",
+	"M6Q93PiX/TyAf9f++7X9jN8r+BcwYO2ERH/lvsYu/eczcXXxLtf/UPtu4/Og4aX/VPtu4/PGS5UvAGL2",
+	"fUgPXpelG/YK8/GFh0uAoD2pkT3kvvAEz7KmEB/U23y5sbYFvkAgCm5Ci6rztReiStc7qWWlUMXdLdEJ",
+	"VKVmWUoyNtVEFppoeglBF17NvtcFqwGvGABBPfi0kUgJxlKFacIsOdaSTNg2kteh4A/MYabmTrq3jMSB",
+	"b04zOpuxtBuNBDyMo6hCM0kczHpIsG1cK2D25uEHilw8GwkwSBBXyObRkFBDmS1GdiXLJg25NeJSymY5",
+	"M2M27zKWygXpmA148pj82iY/V0sqlJkCgnCAaprd+qJvo3G21bQfNNa0rx008AwnRc71+gKkRqyay2jO",
+	"8qcFFsiuab/ma5nzPwNHGpKv4FnUQxIAD9nUqD0CUB81JHGJto4jQOJ6uDWkka8AriFVfLrgIj4hijGb",
+	"4BgCpbkUDxSJrw/dzTpEyI8FyaLYayRcGFIpxM21Xh68fw/OwKncnFKQRBejAVUlXWQhgCFldCJzaxoP",
+	"dHvPkiLD3tVI0MrPG6kNIjSsm4vmGX2ljHpZ/clINBlP1hD7RRQD34SV6iMUcqCpiCwziYVGr1iuwhAz",
+	"BWerEJdCrgxd/MNTl37LNElFBc01EiPx2WfIEHGTXOQX1Shd9D77jJQ1p4y4UdYrLOcCjpYpnxn9F4p6",
+	"spxTF/NitAdLXxRJc7oSeD+WxSTjas5SMit4SgGfhxhxv+64OGZu2mq/GMwzM9KBuecC+a5lxBev38A9",
+	"HYllzhIG1SdOvM3KEBO3FiBOvStohtGiS5YrKVxOVGvU6pHnNJmPhE35KtIwkM/LljlbMqoVaj1ckNgZ",
+	"JGJY3V/9ipxKcWV0WinUSBxi0mIkxBj0ZtZHCXrJxgn0+pa7b89fnJJHjx49IZ0Y9YMh8QaF2JAwYnr8",
+	"5u0pMQJvoZeF7pFSgYZDjMGuZngA8c8Z+eabs2cEhQjVMyPCPP3445QLrhk5e/78+eEXj48JqiOqh8O2",
+	"2EmsoPA1/RrCqwS8sz4xw7HgL8zuEyQQ5kqTDrUeJixcGLqUyjqs1LRSEQKhmqLHluVS6i6k2jL6UezE",
+	"Y0qUmbVgGczI2noIEj1lwx6JvRW4+op04ibWOsSqVVDqgRBnV/BNmUVKMmlUSWq4bJZFRGE8gkZB16xf",
+	"QnUyB9DCGnszbYFAbO50bkabKlwIODipTJD2+DVDgjVhJyTJuOGzRM3NkpmGlOZZRvhMSNgxmAwUtbUl",
+	"Fs0sIwI5A4kRo3NiA14VoWlq38CthxNoFChP/lTkCJeK7MVSkVNdgCxh2I1ZCTiB5XkbkiPDZj8/Jk8v",
+	"Ts/OSMa0ZrmKSMpn5ppCbFvP0Pux+c/Q/OcwjnBKFBO9g+pA7avmfMG7pINSBonL4x13e+QbwSEED0DY",
+	"iC8wrQWgbZr7qFd3IQ0/M43YhMgwJ2ArI4GkMH54dRSTXBpFBUWQPXjgU5vgCjDhDLj+SLgYEOxnaAby",
+	"I34gP4LE8iOZ5dTs8o8j8ePh4aH/v3kwZKfkx3CvyI+QpQpZFmTvgO22WxShvw1+NHcqwocr6aBLBatz",
+	"dvrtQ7Bk205Drk1+JC/PXl0AUmXmarf8iO0jN/c8KeBFUa0IS+Q8eiCjM2bDfmrl47D7qoxAfjScTGk6",
+	"nTZ2i9ytZG1G3LXZ+jyW6ITYIKbQPpOzROZpZU2UHQEKJeRHAn9wpYEpmWmDsAok1XRfOAaEo4DthzZG",
+	"4nlFliEZVxoZOh4EW1YvXXBkt6hWQr51c11HokH0GRJqT5gr8f7ZZ4bMSME++8xqvAuwC5hmNUt7biZQ",
+	"PscMgaWEXRvRnGu0EeRARI18AoHyypM087Rj+hnThjsZDv16ycTTN2fESZIuSyKQMAiowitUztxQ7FLI",
+	"HJI/fh+PRMe186jXR0eospcCFwpMGOZ2vDYvDWB1zStnzwxTFSzR1vKpDLF+6uBhEVnQzDBMzI2ONB9O",
+	"wZW8ZHaDzIiO+0cnyLK4+9ZyGiPU2ZXCAcHTj3okfjhnNNPzPxva9dCcwzX+uWA654myAbwP5ZIJuuS9",
+	"NV1k8UiA7CGk7aQTu4WDheg6wvQcbCGOCmEFG7ORgmzUKOnEsFV4YB/ab3/zjwqCipFWjkRsqzUYStlQ",
+	"SSRG20ts5ZCmwiJDwyRsoYWJTC0zM+KTGdHnT/pHO4swsN4MuGj80N+4h4OH1Rho0olHB6OD2MwUgNVz",
+	"meH73RPs/fTiW5KwLDPdti7rEJFYxDb/5IQadr2crxUUmwfIawdETULmjKYMlhm+Puo6kJXt6IuHTtSL",
+	"7XBKCKoZz031Ilxz7wqWr4egWJqxLameD3mKzC/GQQzPUrZYSs1Esj78PVtD3CHa0q2ctODKyLfCKrnh",
+	"0kNDKHBz5ezbOfJVmz46fmiP2it3PYhaC02vI1u3xmhPlscjtw2Af4aPHvf7J3h4kHBxNRJGAjq0rU0K",
+	"V97DSGpF5r0GRurhCTMKus81FRjQnNAzEubOGfnDX1t8IoIQTchcwcs1IpdsDbLg8WBg+O7jfh/VF0M3",
+	"RmKE+F9BM7xKowMkz3NmeJsrUBOfWMO8ERBnZiD2BFtJLZPmCH8tgdqbzqxAjfgpXwqHq4qU4VUqFB6d",
+	"LFCtdmMk4nD5pGAgxnosCAh+QLUvARsKSm/GE2aTU2B00IGRXXPONM3XQcmaUMlFnKSyCZl6/V7fJi0z",
+	"NOpgePCo1+89QsTjHOwBjsqZv2esCZoo1MqIV4N+P6iOscxlwpQCopXxK9YjX4P45Chfz2c75FKcpQfD",
+	"g79j+ne2q5q3b9Dv26J+2hUhCCjeP9oEGnhQbzJNYRdoEajNA4ZpVuMx9tfUjB8X5hMRNANKXTGmHAz/",
+	"+D04URZmG4YHL/kVEwzgbRoyw/yxnLk6+N686njG1kV+k0tz/lmhMESRXS9dmnjUB+vre4KPQP0RYJ5G",
+	"vDXcR69kfolxKDYDnSI6L5TGM7WxJ6/syG7cEzOuh8uM8tpu1BE6Gwtve7iPpQ+WbeHnsXUTQk69dSfe",
+	"zhlxworX1QIqsaKKTApupFqwCLY49ra5/Y69G+QeCx0O3chZbvgR+U9PX728j/V/G2q0u5YexaeWNMb6",
+	"XFKqqeHnhNpfnQ3IsizDL4s8hwk+7j8aidLJW9+V5qN/joP6WagR9G0YEByrW++NeevRzW9dIFf+RtAr",
+	"ytHXvGtbz8GWfQNJ8wmttu7qZ5+BlXj42Wd1w/CGzidzp7oAU8UMGkSgzX7KcyMrQCZzxE/GQahADAYU",
+	"K8pati/IZD0SMU/DH3vkBc/AUpDIxcSIgCArPf362QmJzWUGwZQLi6hB8V7L2GbEMN9FZCL13NDaygh6",
+	"5PdsrRgUauDCGg6WVCnLKrGSxkgs6Yw9UCQOijLEUPTB/V16UyEFGg73pPaCkcUAayDxnkCqI9O0kYzw",
+	"ITMRuaTvCnYCskbVSJcyDDGQOXhQEaqxoKldELhGrvMI9aF+0xV6yZU+dcl0vaysIHjZcIkDkIRdFPWw",
+	"GovY7gKFGKH3UXOzZVTj3bXpMxfdXZM+jqVdk5WgpG1tBrl4WzUapPitX9bnNM+4uW2Vkx2V9wGifxrG",
+	"YG5OZQBtIHGb/b+kuqF3f/O29Q45TT607zd0xojif97aCyhzlY58HOPjfuCmG1S8dEdNXromeaN6v32N",
+	"SSQbeLW3DMxXdml9qBSw9O/vkenByQUYagPfey0YTAjicIB2AO87bsP7vqKpg3bCK0c3v/KNoNacy1J8",
+	"qQW3fCHzCU9TBji648GTm994K+UrKtZ2dOpn4uaef59iiAU3Cuw64OGWX38fHWwYGyFxVqtcWVXmD9ks",
+	"70ECwDpioH9Pue6RM+RS3iUpRcKikl/apJfmVqSI6cFvxlYZxhybEG4NBtCcuZa2yIaY+32DrTVtTPkI",
+	"Hn2b7/R+79c2+R/L3f3Cr1T/+OY3vpb6BYRo/I3ewacuHbE5okZrAce+xQeA/8alWLjv2/kQnCWt7uju",
+	"O+lMXYmRxFOsTmcRK0HBVKuk5YWIXCoMEOCtQyHw3IDxaLlkIj2UIlvvuolPYQq/yOsIQ3spt2rkWIrt",
+	"05X8BVzJ4OiB6yqxRN7dQHuZtt3APa6crzcKx20p1QddPIwPU4QajRhHHZGcWcixZ4K1SEKPtJU5n0F8",
+	"iQNXQGFBYJVljsKMC/SYQeXuteHX2MxYTuMTzKHoG/J81EWHgSdB0zUAY6zg0SPnDhNXHYZPMGne8J+M",
+	"9gqpaBxYxiIDO8ySHWhrJAADDpFZRrONPfIwJh3r/2mupNu1BMgvj3WYxEs0D4zt4p9YgKL1Z7v49UI8",
+	"UM6jMRIzpsHzgf5th4/iOvKOBzfbB8rDkmiO7AAyCVE1EmX95h557dIHWZuWJad4TueUC5JQgbnMAI5P",
+	"Osf9J9FIgPMltjGQamzftu6fc0jt0DkeDCJ0+k1y+MfJSaVj0LMp096JR3GNBCZSPzv9HXl11CedQX8w",
+	"6EbW7hCAty5ev3GRm4bYd8GdGINnZ2y3Lh7iGHBbASmEnNDC/V1BZI74SYv197nLoUF7WNRYgeHXbJtg",
+	"q3hIqCYZowojVVzoACKS7GGjGRghsZ0FvR67X8bTnAKIAZtZSKXJ4DH5tXdpudgvN5SRIGWz5qhl5pRW",
+	"J+GGkMhCaKjsCT4f21TXjoILjL1Q40u21OE0KrDB4MHY4nPMGDoOA634deS2qIvpvXyiU+xpIvV8DKDT",
+	"MROpGgvGUlf8e2gnY4ZbuWtmAcDeZR2oNqOrO+Gu2LwF8NI8lyu0eCG6lWp823R4AiYo04hF2eBY7Agi",
+	"QHUZxq1tgKmDF6zma0zJOmOC5RQgP7ErWu4NWrDI3Sb5ASnnc0eNP1CCADb2lUzXdyY8+JF5ll9Fl/vi",
+	"yBXh5ejj6BJhSDr6raH/lzLZEsf4hup5WKEVS8DGNeYI6UuqU4x2uTn+nQlO/RaC06kU08ym7zk+ajGm",
+	"N3SdSZq+lfIlzWcM33vcZgFUscTCGK9YyunbNSZwPB4M2rxsvcBG1nouNNfrv1XR8HkdLgZUDkQsKGKB",
+	"kldQ5M+JjO+SuxAXl5nUvSWGz92HIYUuGIDnwNkAnamrWWxn9ubrvyN8QWdslwL2JpP6zdd/d58qGIzh",
+	"oV2FBpPuhAuK5qw2jlCY5Sel62e/WebgBNpWRPAU3bvRw53ye7hSFyWQ1ouBPvxnQfNLlloR2WpoduY2",
+	"dHXKIVxhJCZUpKgw0DJh/ZIKlpEJy+QKFBa8mh5XRBEfAsifkRB0AUImtu+jUIIIF9O69RLddL0vvv0I",
+	"11tdzX5zfStkw6cL/Qu90Hhu7v9Cl2DzdjaVKqq9dofPNsKpoCLEkmhJjvoAL7SxD0Ecl50wqHpGYR4J",
+	"WmqHCOLF21zecuKK4Rh1KC6/j0vtDbQrp+t1e2QDgdgjb4KgLwhLqUdmUbF24Uvg0Z8DZ59iOSKqLehb",
+	"EXRCm8WwROGkknlrJED7UqC4IWmyNeiIomuHhMTAH6jWIQuteGqLuNnQOJaOBGqAMkdCRihauy1AwVrF",
+	"McxnyjXGRVrTOPYDaM+ROO4/2a7VBYvyi9PryrHtpdj172UAtp7TFm+stWEtfTAJmM8c2hVMZ//uyO4n",
+	"HeyX6LUOgwUUFujB2NaAvYRcoCWP2cFTLN+5AxP9KwmZiy15g6jXumHZsJbYhipZhuQyH8dYARJda2hD",
+	"S1li7Se2oh0qpKYl1livgTyFpsFGXtZChaS+SOohMgdTgqIRjpamtM7xYOCJshSs2yNPKwwFE5VnUsxY",
+	"vjkzwIg9GYIcC1G3XJEpZJgciXMolKJCFyEESAu5Quapmkg8Vs+6Cy/83RN3HNvPRNi3WuxwVCz9RKw/",
+	"EeuP4Euth1zeqzt1I9vgHWv0iGyoRMt6mEODAgAIZB1vw8R+W0tc+AsELWxkjNyidFcW/pP2/fPfu2+b",
+	"I7ob4Qw7bNMt1fCojZpdSQCz/Z6RsyCY3TQ7ElvC022+sgnVyRwD9aQgnbCj7omPER+JBXWgJPCxuuyc",
+	"5pbOjdDUqQ3KusYZtZKW1+AnNLksi16irNJZMAqmgdhvUhwRIUfClw23KQkWS8hwx7UNwazGvg6JSzQ8",
+	"EpCWG/IPu0Tc0MSvn92csJucaUxvqEAZHwnILP3Xf/5vNYdxmWimFy7yWMuM5dRmN44jFBBHwpkifvqX",
+	"QZ/82hVaId9ckOdvnpKL7w6/PP6cvEJ4yZf9fv9ZmAenuo8nm9gAi0sxs895CmsUOZzYSFTSvsDXDkvg",
+	"cGNPy/BKWFqXNxzjH5yYaiRbBVv71GW2r5wvQF5Im0DDZ9+uZi0gDn0+EtTovraMvCH2pBCaZxAUbCuT",
+	"hI1DkK4H55xAxkL7HAISIM+MskntXC+uSr1FkKC9N2w3GgnIpgFifi4xs4/z0WM+ZltaHRJ3CmZ0AaEQ",
+	"zmCPOZaBh4U77j8h1mTsqrSgjcfFKKMEH1ZjGQl7fcZC6rHXV7qR13VKEAvk2hHEY5+8v6xsJESolE3U",
+	"rEH22TlV4ynXcbdHjgeDIaRhDNfc5vAJdzMA/Zg+K0cf1nocnFsI5qcIldliYvq2mm76l6WGNKU8/sjw",
+	"gaYk5i0kCQ8SlYU2F/2TyvJJZbl/0ekcZQTanBWnTIrTUoIKq4zfoMoEaXwe/lB+eO90HEsS78n7H1hx",
+	"MOlL6hIf1PyELl8D1cjxnIdiJIRcdYc+L6uvIlfyMY22fiDI8C52l3s440h0hNRtmAXKU+Zhx23Ql4rB",
+	"oDZiEZHjYEmLsIAN1S7vc+BMgFmtKOIIwTBls1Mr53EhioUYUJzYmIsxJCiCJE8CLG6qSOZ1jqdGApmx",
+	"zFIGeNQe+a6WMhbbX9BrbHtMZ2w8l0Vu88cEAgxXth3IaosLiDsRYTUxTDsHA+uR4/6xy+C3xmKCkD7C",
+	"PAgG/JXMmy1rzuV7Jl5IrF2xH1srxfiDmyMyt8O89gmn3OQmC4mB7S5v3gmYE9E/NVFM6G0Bc1TvHy94",
+	"78E8bit2xfSUW/9JC//ZWcnmrpirSu2xvFMV/CYWcrdu8aeKxG9eX7wlO7zvcbRpEyvXYYpR5RvMJbZE",
+	"Id5gL+bqQj7YkYj/7jl23ZJjGiUC8pfB6r88e3XhE3CBWyS5dMNLVaNj/WtZHz+4Mo5HwkdVoItku45Q",
+	"0sMPcUiHVPWe9IWmgX7yTn/SHj5pD21I/h8KamSS9Q7ad6duaptnspVOUBP4M0ylEMaBoZjqUqxN1hAB",
+	"tM1/8cp2fY8EALvY5Xmw8/+UHeDuXXdZFmT7rZ6VEGrhTuC287uPkyAUMcBOas4fSWxcoz+pRz3yRiqN",
+	"mXwwRAziuMzDmC5YrEeirNGH1nqj3tXPvGsaNcfr4JfOoH/UPRkJBglP8nLqEI4YBSZWVzikBGX4RrC+",
+	"0UgEIZjl0Nk1TbSN5quN6wEggDUIRYaOjIQbqLDCCcI8EDLBNVSqgcjFnCm0XvuaDnI6EoGhHwsXBNkQ",
+	"ypqKyiVor1TiVXO5gilkGcSx9chTawAos5UXgr8rcO25MAIuKrWd48Fgh9n0lcuecx9iDDb+MwkudmYN",
+	"NAt11oRmzrhS2/kTv8OQxwKNpUDd7tIgu318eO2cKyb/sOAux0jigFM9/MEcm39v0V2fRLFfIFAQLo+n",
+	"RlHpfQtFHiyLtC8zq0pf9kzfgRAWuTLb0qepCYPs4+3ZOZGSNqVXW1I9Ly1b8M/9WNyeErVkCZ/yJCBn",
+	"AY1rYXcLQufKEe3MlPX9z0LGS9Hzk53t57/pr4XbjdtfZatm7e9caQaJAee2JKZMAFHKjOiO98kLgqLJ",
+	"EeR8wHQwRmcEdz3UqwMzBuSKfxd361lz3sgs8zk+oN5NmRauMZkkVAOJSQcv5LBEtEDCCyP61vNJEpqt",
+	"6FoRxTTpgHvWphWHTG1Ye9Cqu0pCSRPtymrFc6rGC5mz2HkjGKSPhBoYdq4rljOXfoEkcmGLFYzEC8CZ",
+	"GJmoOiLFmCsThkmGnEQtRcKGrlmoSoJFMjEPA6bdQA8K43mIhVC2XzAXUpwX+G4QpwG50G1fzr/kB4qV",
+	"Nnq+yAM+xhVZ5eZ34boOurOFbyjmMddDwDuBdD8SeQFwERdfBLimHsqDcURi+32Ppmk8JLEVFBEtgcZh",
+	"j6boOUBTtN2paZ8Mf427kPmz0fnmX/A/hYNwlfrLJCpldhMzdHPKXS1u/3Do85MCCzg0mh3OoaHnsLmb",
+	"HO82WRNPLFMqh2JugHt0yrBuYGOyTnOH9k+reKeZJY/6/e0V4D42x8TNecGaAR5hVse/jXxXf4tiL7IW",
+	"c2yh3FcFuVaBXeM3t7M75kVrR1JQqmgjQhoq7dnESaQTFNIrM05ZSof+/inAgQQri+oZCoXmiFqCqwc+",
+	"73cgXTt+WtLgIaFk0D8aiQWjQgWFfCrEHdCFhbCRMiKoj4YFVCaFdiBJHFlZosPafmSO0EPDOW2R7AhS",
+	"AvmtJexdQbOIaCnJ1NBvTOHTRUcUzzLrjopcSSwLXwxjeKrRkUOS09VIpFTTMheXnudyJQhd0XWPnIUF",
+	"YEjn+Pq66+ofWjtEkCBqwtbSJvWxudXBwDMMcQyLQrnybpi90HxEPKvbpzJV1omzGJkl8WHpLqNXRics",
+	"g8x/NFfA00eis5E6SZGZxCozAfQWD4teSVemzNZBw8rlFKoTlqjbE3dJeFoxZwUlG21Bnl+RoCLLSFww",
+	"I9psFGnRkizopRmhhmB8RacMc39jaT9zNRy4ZiSwAhBIAsoWEVjA8C/ZElmSz/Y0OCaACUEEqLWaPQDj",
+	"nJixfJlzlDgoufjd08PB48+HYV0YTLXoF98IgUuaK0zLNhJMJNIHMpAOlDXmGqqPJoj/XDBz7K3sZFd0",
+	"QbVmefcEOxqJ04tvKx0BHysr5CifFiqnKywgNFlrhrXnLuiCkUu2jlxecz+pCKVc79Bz1adSPHuffebS",
+	"qI0E8Rfqs8+wCIsuclHOa9A/quVPh1GAkOqsWraUIgK0w+09Z8uMrqHbvGDxCRGSKJaYW2FWtPQYV6fj",
+	"LNE6nNMQqtSEDwZ1U6rT9QSACzLN+Gyuh7bWBHQNyCUzYLMHFlhuhU3XguYLBtBZl/g+h5kgxlrmBBLV",
+	"HfefQL4wnPc50/n68OlUszzuEm40lTKV1pQLruYg0nLwEB0C/Np2Zs6yJU6GpJgOHhvK4l+fywwBWJds",
+	"7a+WOTqdGOqHJOoq7o6EYauV4nbseilzbZ7ske9glKcotRy+XS/ZkPiXy2R8I2ELOtmyiIgYd7rOxvGM",
+	"kY4ZEbvsGErUVmoJdBzDREoTuyIqMelgdWWadU9s8H9cF6dii+8OugWyOWFOEO0c9/tdbyOCA8oV+ebt",
+	"i8MvScfQR1fzXrNDvI4Lml8C8gtqQKZdxDwdH33ZH4mOnfqCrk0f7wrp80HGo4P4hLx8Ybbo9PzlC6x5",
+	"xUSquj3ykgsIIDBjhQM5Er6OIkSJ/ip2aQZwewBHZyjcJV8uWXpiyyhD3azwhx7OCw851hGAfq3+iBvW",
+	"I6dQvkt5RyQmbBRrpEC2ZiLW+IISgBZl+GOQik+uzEcrApkPtWKKvqDiJRdQ03DNFPkRdBRoIYYP8H7s",
+	"igA6gIp72PG1su7lli/hdWBI5cvI6iqvok5tax5WK6O5t1w8SOXniPz1n/930q+14IuV+ZcBIxgUN7aH",
+	"afsP0A4uwpjDkghZ9lIyz9pMXeTLxgvuB1vQOsKqmYz0SQcfQVHsqIslEw/J6yBZo2HKuVz1yLmvJW5L",
+	"ei5B+ySQXrBC4SEbYIkrMvfV7kIocaLrCy6io5CM6moj1e3oOmMtsJFaD8F6dVz1zbIiG3RT6yFYsW6P",
+	"nMuV5bS22pfh1176MS0hqsWsD+DM8B6E/QL3s5cCba9iDbcARAR8sFLvt1CMxD0wD6Us4QuaYapVKMDm",
+	"6BoQYQFUKj7qPWaHj+IuhjoRQ9cKRUWqXJ5GCXVJvqZfG4J6JqYezUoyfsnCWqyYZQwryPoVgfwgEOnF",
+	"BQgxltNA8b9qtRJDZNeYl1aZST5QxNxpT1nhZOHrIqwBmRZ2SVO3hEhqqCseWa4h/m5LEpt1tHJ4yd5R",
+	"MTCyjy/CS0VA06wPwhA7zJQJcfLw0HH/yecoCwWl42xO1qUtpti61iEej+bnIZAFzwysMSYYN2sMUiKu",
+	"Y+ev//zfMMGNF7OxNLolrEi2ZA6Vei3gyrzyuN+3Ijd+DnPkdF0SK8Pogaehp9omUzVNDfr9yLwBGgtc",
+	"ZMybimKSLUFoFBZrv2JWe/QtQo0zTMQnxSFSE3Qinvj0pHQNktBEIpgaVCb0swSVCR8oaBRr4OSBux/K",
+	"Uee2NKY1erqsCFDmFJe81+vFbt/QJngNqzAciTiOR+JXVpbBjgOqu5xLLUEqODwiHctaN1lodyTM8Y6c",
+	"1oQKZZUfONIfeZoQOQoDGXxgKyPBzfMsenkU9XuPo36vf9QfRNHOJ/pPvmx+YhAd9frmiUH/cfMTj6IB",
+	"PnF8dARP4Olxv0fw8uN+9N1hv3882PLA0aNH+MCjaGAXdAvG4LzYPyIrkPh/z9YHm+Y6czLgpHkxEFgG",
+	"po52mjBAp7aY8z6wbtA+owmOVsmht43rDkovtR2bD4AAswoto0RKtP5WcH4pid9BVZ9yiF5yN6OThvnU",
+	"wl+2DchJ/60X7bV74f29JR8pAtBudOAUo2oDmwsBnB/rzKdIIs2cF1y8ZGKm56FBOUzD9/FCCc+LmyII",
+	"wbRhAwddAFLuq8R0jLxpaXVutfmR2LDhROiNsi9Z1uAz09sNsy6KABbTZCvYXOgYjAeugiFXTu+xvXnk",
+	"lZyCu8kD0FC7rhovjALdBkkzkTJjVMBhaAfeAaBE4RIz54X4d5mW+RNw5xeYOlIqDfWihbP5B5c59GAU",
+	"u2DTYeBlg/Nij4pU2x0Yjt44xzN1BsAhjNgJ/bZSRK1AAJpdvX8Gv6v4p3OWMA6xi1WCtq1Q6S1knfNC",
+	"3HcSGTOs7bT6E37ml1CEyvoD8PDe6RW7a2CNhdJU6q04+0r19ljcRY+cl4VVRqJeGs6Joc6KpbyXbTOC",
+	"I6gbZ/NU2GrxPPc+wbDgTY88bURPuIo72OqMGxkFNEo7CIdSrFSNqVZL8EHBMsN8NlyFRWMCNIW3r5+H",
+	"KKOReMZyQ1vqmWwcpfnDaRR6IoqsEhuuRiJlCTckKyivZ1MQcmF2EjrzxUNG4qgX9LKqDHFrkPeQxG5S",
+	"8clIDMImEllkGMHnnay1xx/Ve/Q5S7iwIJnaG8fhG9aDYRZjYSi3lgDc8hHjpkVreYII81pbj3sh9rEZ",
+	"d+OTEFUi462hwp4GzNMT+B5wXGFvUT3rDLxe6bLjExVvJpXJGTplzNGZ0OQS7Jpg5Apy1YzE5+HiVMLl",
+	"hySGnJIK1Ccz+S/CZ4MofOtcovaoROhX8oH4OLXuEPq2Z8jQqwqyzkPn4CBD6w6UJafEx4ZaWhJvZ5bn",
+	"HhPxS+SZbnRbq67Az5/Y58/PPi+qyaEQ8VmIO8XaIC+1l/jDgTeWGJT0B4hBaI4x7Zv7SmsJ1hzZUKVx",
+	"T3V7BCCPXJF3GP/ILU0TCavz0UrVMpu4yjnLSotQp+TuciUwRbnMwxguzy1KmKG1MFs9uqxVVqJvtb85",
+	"D+qw25HYCg4iu7FBZkWrJJqrDcECiqfb5XaAQ+Swmi+Yg0t6f78T/SGVG7BacMXyZE62pcOzDhAMq7e9",
+	"dhRjAUmsC2Vxt0fcWbAbXkKIAdGgFcumwCI0vWQgJHoOUvL9QtwIE7L58G1eMax0yrLUoodMX5CM3qdp",
+	"s641ezROvMOK8LSCCQpROuAtAKOFkfMMT7SJaBzzM9zOAoznVIWNWlbupoacGJcSZ7fdvmwX8IPYyN0b",
+	"AO2ofqaMXzfzLy+P4FHheaX+oYXRfArZ/2Ruun/tN039adQyMDy9c7H8es4W+3DzHXqx7ejhD94n9/6O",
+	"NeNpCUpAchkRmuRSQa1lvG8uYtlGNEeg0m4ozpBsZRfz8F1ZRmrLgoDWy9MyCSeOCzOmOAaAuSRLsMIW",
+	"KR2p2FZBfZOsvDx7dVGZ+gZjc8AH58uphsf5Ed1NjNx96gjVtfmkJvziiwfWbymtndY7UxgAUtxSSwiL",
+	"HSlVQHWKnIpULggikzsefnw0+JJMuFbd8i7N+BUTiGhWtnCyYknOtM1CB+6t0qElsvWJR1kAngSg5uB+",
+	"NSKhhS2PxJyqOSb4A3NaJmdGeNsuhr01Q72nTALQ9s8kR0HfNzg8YZuiUt2xG6DmgHASv/xUcJ+EnPsn",
+	"PnC3CcXDEhAaSypaBsni0951lrKMadaavpyzK3lpEVvQ0onFT5Vot/5RtzRI24QsNocXJB4ZiQC651S5",
+	"HNpNLb1COaOJVDyD4TpScXOo/AcIAd98Y1S7BvZ/vLlauCyfAsl/Ebl/zVZ8+DXJmUjVfebpVTZ1xZbc",
+	"vNXg8MBDAzX5RkJOjQBuz3+QYjFWmVyy2ELHJlSxEJcPNQ7AwIYSy8UzaKn0EsXujbg0+JfDNc+tuEjl",
+	"quxw0O+eQDSWzmXmoKiKQ0rbn/5lQC6ekc6K5oKLGUZa/PQvj+BLtM91IyyZT+hIXMzZak5zTRL4b+fs",
+	"4jX54ssv+ocDO53vmNIz8L+DmerocKDKxiNydPhIRSMxOByoiJwfHquIHB8eocJ01L8mHfQedcE+wcxC",
+	"UnQjlgurqp49hR4zQBKFiYpPasnz0eSRca+mjETsOxiSKc0Uphi+4jJDsx+mXgLjpsvOHySjGgkurmQG",
+	"5kMIk5lCbmIEI6/kxuZAXmBbu8tt4XAkYtwPMGeKIstsxmXskqtyEXrkKWJ4yRHAd8tZjYQ52Cck1nkh",
+	"EowOdwkARHgiwPkE2QA6guYAUtduLQxDgDMJ14pYhh4F8iEguRIWbRaVkCsxEn84JcDI0yJnCqEZlXIS",
+	"EcnZrMjMO02VJZpVUxjNFj6yC1Z5N5lXPkY+5aY+/GxbYx1hnd741xoQmM8B4WboR2hEjwgXYOG/2gqj",
+	"NQfjDhCgL9GhUOvd+he2967lHfT9O7kiCyrW9TsZ1fJxVAlohAGmOiDS20bpfm9OHjAIcwcMKqkDBh85",
+	"dQDep23WYpZzAHho5Wcc+dAFkZak8VNKgbsXi57lfKqdxGEj792Fhno94MOyYkaNmZvNqXLe+6oCjVLX",
+	"fVZ0B23b9FIBGmC/cQ2YW7KFiKQ5XaHrrJR1QEoZhrKDDaZFIyyyMgjmYARPu/kCZSLMqWNFIVxnjwhy",
+	"rYHogbeCgU07Y7boPOIOIbo+M7z7vEEYMeIKjHoX89taDf4TD/zEA/9/zAP5gs7YQ3U1+831IqsywIbY",
+	"iYZCDoY0fGJj91E5uiS9CNMB2h0RpGJ3zJVM3ywpcq7XQBUnjOYsf1ro+cHwj9+bc2Q7rN+HsyAGu8AS",
+	"10E9sgDy0SmVcdXtBVkUC6EawtZeYCaasC130dADH4AbDRdVQZN2TTYbPRNXLFeQUcumMg9KclcD1MP2",
+	"wsznm43+4akrxANGjaB8dTVVJFs1vVxCkKrJjyIPNAhwP55vJmXepEov1r220U1zic2oxCWVuU7qlVl8",
+	"6++ShoYxvTLkCLY5DL1owXNSZnImS5nxhLNwWV3Sw4ZW35yhVSt83Jq1GtgBv2KCKZ+ICf5cMJ3zxE2L",
+	"K5LKxMfFVULhcFu/f///BQAA//8=",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,

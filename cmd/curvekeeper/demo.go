@@ -9,18 +9,22 @@ import (
 	"log/slog"
 	"net/http"
 	"net/http/httptest"
+	"slices"
 	"strings"
 	"time"
 
 	"curvekeeper/api"
+	"curvekeeper/calib"
 	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
 // demoCmd loads the invented demo scenario into the service's database
 // through the service's own HTTP handlers (so every request is validated and
-// audited as an instrument's would be), then prints tokens and commands.
-func demoCmd(ctx context.Context, args []string, getenv func(string) string, stdout, stderr io.Writer) error {
+// audited as an instrument's would be), then prints tokens and commands. now
+// is the clock the scenario's dates, the QA round's cutoff and the printed
+// example are taken from: time.Now in the command, a fixed time in tests.
+func demoCmd(ctx context.Context, args []string, getenv func(string) string, now func() time.Time, stdout, stderr io.Writer) error {
 	cfg, _, err := parseConfig("demo", args, getenv, stderr)
 	if err != nil {
 		return helpOK(err)
@@ -44,23 +48,12 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, std
 	if err != nil {
 		return err
 	}
-	_, adminSecret, err := db.CreateToken(ctx, "demo-admin", []string{lab.ScopeAdmin}, "demo")
+	tokens, revoked, err := demoTokens(ctx, db)
 	if err != nil {
 		return err
 	}
+	adminSecret := tokens[lab.ScopeAdmin]
 	d := &demoClient{h: srv.Handler(), ctx: ctx}
-	tokens := map[string]string{"admin": adminSecret}
-	for _, t := range []struct{ name, scope string }{
-		{"demo-instrument", lab.ScopeRunsWrite}, {"demo-lims", lab.ScopeResultsRead}, {"demo-qa", lab.ScopeCurvesReview},
-	} {
-		var out struct {
-			Token string `json:"token"`
-		}
-		if err := d.do(adminSecret, http.MethodPost, "/v1/tokens", map[string]any{"name": t.name, "scopes": []string{t.scope}}, &out); err != nil {
-			return err
-		}
-		tokens[t.scope] = out.Token
-	}
 	for _, m := range demoMethods {
 		if err := d.do(adminSecret, http.MethodPost, "/v1/methods", m, nil); err != nil {
 			return err
@@ -74,15 +67,13 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, std
 		return err
 	}
 	loaded := 0
-	var lastCurve, badStd, curved string
-	lastResp := 0.0
 	if len(existing.Curves) == 0 {
-		runs := demoRuns(time.Now().UTC())
-		for i, r := range runs {
+		// QA approved the older passing curves; the last week awaits review.
+		cutoff := now().AddDate(0, 0, -7)
+		for i, r := range demoRuns(now()) {
 			var created struct {
 				Curves []struct {
 					ID      string `json:"id"`
-					Analyte string `json:"analyte"`
 					Verdict string `json:"verdict"`
 				} `json:"curves"`
 			}
@@ -91,16 +82,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, std
 			}
 			loaded++
 			for _, c := range created.Curves {
-				lastCurve = c.ID
-				lastResp = demoMidResponse(r, c.Analyte)
-				switch {
-				case r.Note != "" && strings.HasPrefix(r.Note, "arsenic") && c.Analyte == "As":
-					badStd = c.ID
-				case r.Note != "" && strings.HasPrefix(r.Note, "nitrate") && curved == "":
-					curved = c.ID
-				}
-				// QA approved the older passing curves; the last week awaits review.
-				if c.Verdict == "pass" && r.AcquiredAt.Before(time.Now().AddDate(0, 0, -7)) {
+				if c.Verdict == "pass" && r.AcquiredAt.Before(cutoff) {
 					body := map[string]any{"decision": "approve", "reason": "reviewed in the weekly QA round (demo)"}
 					if err := d.do(tokens[lab.ScopeCurvesReview], http.MethodPost, "/v1/curves/"+c.ID+"/review", body, nil); err != nil {
 						return err
@@ -108,6 +90,10 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, std
 				}
 			}
 		}
+	}
+	picks, err := demoPickCurves(d, tokens[lab.ScopeResultsRead], now)
+	if err != nil {
+		return err
 	}
 
 	base := "http://" + cfg.Listen
@@ -119,34 +105,164 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, std
 	if loaded > 0 {
 		fmt.Fprintf(w, "Loaded %d runs over %d days into %s.\n", loaded, demoDays, dbase.where())
 	} else {
-		fmt.Fprintf(w, "The runs were loaded before; only new tokens were issued.\n")
+		fmt.Fprintf(w, "The runs were loaded before; none were added.\n")
 	}
-	fmt.Fprintf(w, "\nTokens (shown once; only their hashes are stored):\n")
+	fmt.Fprintf(w, "\nCurves to look at:\n")
+	fmt.Fprintf(w, "  nitrate, fails linearity (Mandel's test):  %s\n", orNone(picks.curved))
+	fmt.Fprintf(w, "  arsenic, mis-pipetted standard As-5:       %s\n", orNone(picks.badStd))
+	fmt.Fprintf(w, "  lead slope of %s drifting down:  %s/ui/trends?%s\n", demoICPMS, base, demoTrendQuery)
+
+	if len(revoked) > 0 {
+		fmt.Fprintf(w, "\nRevoked the %d tokens an earlier demo issued (%s); their secrets no longer work.\n",
+			len(revoked), strings.Join(revoked, ", "))
+	}
+	fmt.Fprintf(w, "\nNew tokens (shown once; only their hashes are stored):\n")
 	fmt.Fprintf(w, "  export ADMIN=%s\n  export INSTRUMENT=%s\n  export LIMS=%s\n  export QA=%s\n",
 		tokens[lab.ScopeAdmin], tokens[lab.ScopeRunsWrite], tokens[lab.ScopeResultsRead], tokens[lab.ScopeCurvesReview])
 	fmt.Fprintf(w, "\nStart the service (in another terminal) with the same settings, then try:\n")
 	fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" '%s/v1/curves?instrument=%s&limit=5'\n", base, demoICPMS)
-	if curved != "" {
-		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" %s/v1/curves/%s     # fails linearity: read its checks\n", base, curved)
-		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" %s/v1/curves/%s/plot.svg -o curved.svg\n", base, curved)
+	if picks.curved != "" {
+		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" %s/v1/curves/%s     # fails linearity: read its checks\n", base, picks.curved)
+		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" %s/v1/curves/%s/plot.svg -o curved.svg\n", base, picks.curved)
 	}
-	if badStd != "" {
-		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" %s/v1/curves/%s     # arsenic with a bad standard\n", base, badStd)
+	if picks.badStd != "" {
+		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" %s/v1/curves/%s     # arsenic with a bad standard\n", base, picks.badStd)
 	}
-	if lastCurve != "" {
+	fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" '%s/v1/trends?%s'     # lead slope: Westgard rules\n", base, demoTrendQuery)
+	if picks.last != "" {
 		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" -H 'Content-Type: application/json' \\\n"+
 			"       -d '{\"samples\":[{\"id\":\"TW-tap-1\",\"responses\":[%.6g,%.6g]}]}' %s/v1/curves/%s/predictions\n",
-			lastResp, lastResp*1.01, base, lastCurve)
+			picks.lastResp, picks.lastResp*1.01, base, picks.last)
 		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $QA\" -H 'Content-Type: application/json' \\\n"+
-			"       -d '{\"decision\":\"approve\",\"reason\":\"checked\"}' %s/v1/curves/%s/review\n", base, lastCurve)
-		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $QA\" %s/v1/curves/%s/audit\n", base, lastCurve)
+			"       -d '{\"decision\":\"approve\",\"reason\":\"checked\"}' %s/v1/curves/%s/review\n", base, picks.last)
+		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $QA\" %s/v1/curves/%s/audit\n", base, picks.last)
 	}
 	fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $INSTRUMENT\" -H 'Content-Type: text/csv' --data-binary @testdata/demo/nitrate-run.csv \\\n"+
-		"       '%s/v1/runs?method=%s&instrument=%s&acquired_at=%s'\n", base, demoNitrate, demoUVVis, time.Now().UTC().Format("2006-01-02T15:04:05Z"))
+		"       '%s/v1/runs?method=%s&instrument=%s&acquired_at=%s'\n", base, demoNitrate, demoUVVis, now().UTC().Format("2006-01-02T15:04:05Z"))
 	fmt.Fprintf(w, "\nThese are invented data. Results support, and never replace, the laboratory's accredited procedures;\n"+
 		"its accreditation, regulator and method SOP take precedence, and a qualified person reviews results.\n")
 	_, err = io.WriteString(stdout, w.String())
 	return err
+}
+
+// demoTrendQuery selects the ICP-MS lead slope series on GET /v1/trends and
+// the trends page.
+const demoTrendQuery = "instrument=" + demoICPMS + "&analyte=Pb&parameter=slope"
+
+func orNone(id string) string {
+	if id == "" {
+		return "(none found)"
+	}
+	return id
+}
+
+// demoTokenActor is the actor under which demo issues (and revokes) its
+// tokens, so that a later demo finds them.
+const demoTokenActor = "demo"
+
+// demoRoles are the demo's tokens: one per role.
+var demoRoles = []struct{ name, scope string }{
+	{"demo-admin", lab.ScopeAdmin}, {"demo-instrument", lab.ScopeRunsWrite},
+	{"demo-lims", lab.ScopeResultsRead}, {"demo-qa", lab.ScopeCurvesReview},
+}
+
+// demoTokens revokes the live tokens an earlier demo issued and issues one
+// new token per role; secrets are shown once, so old ones cannot be printed
+// again. It returns the new secrets by scope and the names it revoked.
+// Tokens that an earlier version of demo issued through its admin token
+// (actor "token:demo-admin:<id>", the API's actor name) are revoked too when
+// they carry a demo role's name; other tokens made with $ADMIN are left.
+func demoTokens(ctx context.Context, db *store.DB) (map[string]string, []string, error) {
+	old, err := db.LiveTokensCreatedBy(ctx, demoTokenActor)
+	if err != nil {
+		return nil, nil, err
+	}
+	for _, t := range slices.Clone(old) {
+		if t.Name == demoRoles[0].name {
+			more, err := db.LiveTokensCreatedBy(ctx, t.Actor())
+			if err != nil {
+				return nil, nil, err
+			}
+			old = append(old, more...)
+		}
+	}
+	var revoked []string
+	for _, t := range old {
+		if !slices.ContainsFunc(demoRoles, func(r struct{ name, scope string }) bool { return r.name == t.Name }) {
+			continue
+		}
+		if err := db.RevokeToken(ctx, t.TokenID, demoTokenActor); err != nil {
+			return nil, nil, err
+		}
+		revoked = append(revoked, t.Name)
+	}
+	tokens := map[string]string{}
+	for _, r := range demoRoles {
+		_, secret, err := db.CreateToken(ctx, r.name, []string{r.scope}, demoTokenActor)
+		if err != nil {
+			return nil, nil, err
+		}
+		tokens[r.scope] = secret
+	}
+	return tokens, revoked, nil
+}
+
+// demoPicks are the curves the printed commands point at.
+type demoPicks struct {
+	curved   string  // the newest nitrate curve failing Mandel's test
+	badStd   string  // the newest failing arsenic curve (the mis-pipetted standard)
+	last     string  // the newest arsenic curve of the ICP-MS
+	lastResp float64 // a response inside its working range
+}
+
+// demoPickCurves finds the scenario's curves through the API, so that a
+// second demo on loaded data prints the same ids as the first.
+func demoPickCurves(d *demoClient, token string, now func() time.Time) (demoPicks, error) {
+	type curve struct {
+		ID           string   `json:"id"`
+		FailedChecks []string `json:"failed_checks"`
+	}
+	list := func(query string) ([]curve, error) {
+		var out struct {
+			Curves []curve `json:"curves"`
+		}
+		err := d.do(token, http.MethodGet, "/v1/curves?"+query, nil, &out)
+		return out.Curves, err
+	}
+	var p demoPicks
+	nitrate, err := list("instrument=" + demoUVVis + "&analyte=NO3-N&verdict=fail&limit=20")
+	if err != nil {
+		return p, err
+	}
+	for _, c := range nitrate {
+		if slices.Contains(c.FailedChecks, calib.CheckMandel) {
+			p.curved = c.ID
+			break
+		}
+	}
+	arsenic, err := list("instrument=" + demoICPMS + "&analyte=As&verdict=fail&limit=1")
+	if err != nil {
+		return p, err
+	}
+	if len(arsenic) > 0 {
+		p.badStd = arsenic[0].ID
+	}
+	newest, err := list("instrument=" + demoICPMS + "&analyte=As&limit=1")
+	if err != nil {
+		return p, err
+	}
+	if len(newest) > 0 {
+		// The scenario's values do not depend on its dates, so the newest
+		// ICP-MS run built now has the responses the loaded one has.
+		runs := demoRuns(now())
+		for i := len(runs) - 1; i >= 0; i-- {
+			if runs[i].Instrument == demoICPMS {
+				p.last, p.lastResp = newest[0].ID, demoMidResponse(runs[i], "As")
+				break
+			}
+		}
+	}
+	return p, nil
 }
 
 // demoClient sends requests to the service's handler in process.

@@ -11,7 +11,8 @@ import (
 // The demo scenario is invented: the Tarnwick Water Laboratory, a small
 // drinking-water lab with two instruments, an ICP-MS ("tarn-icpms-1") for
 // lead and arsenic and a UV-Vis photometer ("tarn-uvvis-2") for nitrate.
-// Four weeks of runs, generated from fixed seeds so every load is the same:
+// Four weeks of runs, generated from fixed seeds so every load is the same
+// whatever the day (only the dates move with the clock):
 //   - the ICP-MS loses sensitivity slowly (its lead slope falls about 0.5 %
 //     a working day), which the trend of its slopes shows;
 //   - one nitrate run saturates at the top of its range (a curve that fails
@@ -23,10 +24,18 @@ const (
 	demoUVVis      = "tarn-uvvis-2"
 	demoMetals     = "tarnwick-metals-icpms"
 	demoNitrate    = "tarnwick-nitrate-uv"
-	demoDays       = 28
-	demoBadDay     = 9  // arsenic: one mis-pipetted standard
-	demoCurvedDay  = 16 // nitrate: detector saturation at the top levels
+	demoDays       = 28 // four weeks: always twenty working days, whatever the weekday
+	demoBadICPRun  = 7  // arsenic: one mis-pipetted standard in the 7th ICP-MS run (of 20)
+	demoCurvedUV   = 7  // nitrate: detector saturation in the 7th UV-Vis run (of 10)
 	demoSampleRuns = 3  // samples are posted with the newest runs
+	// demoSeed seeds the scenario's noise. It is chosen so that the planned
+	// defects are the only failing curves: with 20261201 one ordinary arsenic
+	// curve failed Mandel's test by chance (at α = 0.01, about one curve in a
+	// hundred does).
+	demoSeed = 20261202
+
+	demoNoteBadStandard = "arsenic standard As-5 mis-pipetted (a bad standard)"
+	demoNoteSaturates   = "nitrate response saturates at the top levels (fails linearity)"
 )
 
 type demoMethod struct {
@@ -79,12 +88,18 @@ var demoLevels = map[string][]float64{
 	"NO3-N": {0.2, 0.5, 1, 2, 4, 6, 8, 10},
 }
 
-// demoRuns builds the scenario's runs, oldest first, ending the day before end.
+// demoRuns builds the scenario's runs, oldest first: one ICP-MS run on each
+// working day (Monday to Friday, UTC) of the demoDays days before end's UTC
+// date, and a UV-Vis run on every other one. Four weeks always hold twenty
+// working days and the random numbers are drawn in the same order, so the
+// runs, their defects and their values are the same whatever end is; the
+// defects are placed by run number, never by date.
 func demoRuns(end time.Time) []demoRun {
-	rng := rand.New(rand.NewPCG(20261201, 7))
-	start := end.AddDate(0, 0, -demoDays).Truncate(24 * time.Hour)
+	rng := rand.New(rand.NewPCG(demoSeed, 7))
+	end = end.UTC()
+	start := time.Date(end.Year(), end.Month(), end.Day(), 0, 0, 0, 0, time.UTC).AddDate(0, 0, -demoDays)
 	var runs []demoRun
-	workday := 0
+	workday, uvRuns := 0, 0
 	for day := 0; day < demoDays; day++ {
 		date := start.AddDate(0, 0, day)
 		if wd := date.Weekday(); wd == time.Saturday || wd == time.Sunday {
@@ -97,22 +112,23 @@ func demoRuns(end time.Time) []demoRun {
 			Operator: "analyst-a"}
 		icp.Standards = append(icp.Standards, demoCurve(rng, "Pb", 120+3*rng.Float64(), 1850*drift, 0.02, 2, 0)...)
 		as := demoCurve(rng, "As", 60+2*rng.Float64(), 920*math.Pow(0.999, float64(workday)), 0.025, 2, 0)
-		if day == demoBadDay {
+		if workday == demoBadICPRun {
 			// One standard mis-pipetted: level As-5 read as if it held 1.5× its nominal.
 			for i := range as[4].Responses {
 				as[4].Responses[i] *= 1.5
 			}
-			icp.Note = "arsenic standard As-5 mis-pipetted (a bad standard)"
+			icp.Note = demoNoteBadStandard
 		}
 		icp.Standards = append(icp.Standards, as...)
 		runs = append(runs, icp)
 		// UV-Vis, every other working day at 09:30: nitrate.
 		if workday%2 == 1 {
+			uvRuns++
 			curv := 0.0
 			note := ""
-			if day == demoCurvedDay || day == demoCurvedDay+1 {
+			if uvRuns == demoCurvedUV {
 				curv = -0.0045 // the detector saturates: the response bends over at the top
-				note = "nitrate response saturates at the top levels (fails linearity)"
+				note = demoNoteSaturates
 			}
 			uv := demoRun{Method: demoNitrate, Instrument: demoUVVis, AcquiredAt: date.Add(9*time.Hour + 30*time.Minute),
 				Operator: "analyst-b", Note: note}

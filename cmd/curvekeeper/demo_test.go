@@ -9,6 +9,7 @@ import (
 	"net/http/httptest"
 	"strings"
 	"testing"
+	"time"
 
 	"curvekeeper/api"
 	"curvekeeper/lab"
@@ -16,17 +17,30 @@ import (
 	"curvekeeper/store/dbtest"
 )
 
-// TestDemo loads the invented scenario twice: the first load stores every
-// run with the failures the scenario promises; the second stores nothing new.
+// demoClock is the fixed clock of the DB-backed demo test: a Friday, so the
+// newest runs are of the day before and the week before holds a weekend.
+var demoClock = time.Date(2026, 3, 6, 16, 45, 0, 0, time.UTC)
+
+// TestDemo loads the invented scenario twice with an injected clock: the
+// first load stores every run with the failures the scenario promises and
+// prints their ids; the second stores nothing new, prints the same ids and
+// replaces the demo's tokens instead of piling up new ones.
 func TestDemo(t *testing.T) {
 	url := dbtest.NewURL(t)
 	var out strings.Builder
 	ctx := context.Background()
-	if err := run(ctx, []string{"demo", "--database-url", url}, func(string) string { return "" }, &out, io.Discard); err != nil {
+	clock := func() time.Time { return demoClock }
+	args := []string{"--database-url", url}
+	if err := demoCmd(ctx, args, func(string) string { return "" }, clock, &out, io.Discard); err != nil {
 		t.Fatalf("demo: %v", err)
 	}
-	if !strings.Contains(out.String(), "Loaded 30 runs") || !strings.Contains(out.String(), "export QA=ck_") {
-		t.Fatalf("demo output lacks the load summary or the tokens:\n%s", out.String())
+	first := out.String()
+	if !strings.Contains(first, "Loaded 30 runs") || !strings.Contains(first, "export QA=ck_") {
+		t.Fatalf("demo output lacks the load summary or the tokens:\n%s", first)
+	}
+	// The printed example run is stamped with the injected clock.
+	if !strings.Contains(first, "acquired_at=2026-03-06T16:45:00Z") {
+		t.Errorf("the example CSV post does not carry the injected clock's time:\n%s", first)
 	}
 	db, err := store.Open(ctx, url)
 	if err != nil {
@@ -45,25 +59,49 @@ func TestDemo(t *testing.T) {
 	if n := count(`SELECT count(*) FROM runs`); n != 30 {
 		t.Errorf("runs = %d, want 30", n)
 	}
-	// The saturating nitrate run fails linearity; the mis-pipetted arsenic run fails too.
-	if n := count(`SELECT count(*) FROM curves WHERE analyte = 'NO3-N' AND verdict = 'fail' AND 'mandel' = ANY(failed_checks)`); n < 1 {
-		t.Errorf("no nitrate curve fails Mandel's test")
+	// The runs lie in the four weeks before the clock's date (2026-02-06 to 2026-03-05).
+	if n := count(`SELECT count(*) FROM runs WHERE acquired_at >= '2026-03-06T00:00:00Z' OR acquired_at < '2026-02-06T00:00:00Z'`); n != 0 {
+		t.Errorf("%d runs lie outside the four weeks before the injected clock's date", n)
 	}
-	if n := count(`SELECT count(*) FROM curves WHERE analyte = 'As' AND verdict = 'fail'`); n < 1 {
-		t.Errorf("no arsenic curve fails")
+	// The saturating nitrate run fails linearity; the mis-pipetted arsenic
+	// run fails too; and demo printed the ids of exactly those curves.
+	curved := demoPrintedID(t, first, "nitrate, fails linearity")
+	badStd := demoPrintedID(t, first, "arsenic, mis-pipetted standard")
+	if n := count(`SELECT count(*) FROM curves WHERE analyte = 'NO3-N' AND verdict = 'fail' AND 'mandel' = ANY(failed_checks)`); n != 1 {
+		t.Errorf("nitrate curves failing Mandel's test = %d, want 1", n)
+	}
+	if n := count(`SELECT count(*) FROM curves WHERE id = $1 AND analyte = 'NO3-N' AND verdict = 'fail' AND 'mandel' = ANY(failed_checks)`, curved); n != 1 {
+		t.Errorf("printed nitrate curve %s is not the one failing Mandel's test", curved)
+	}
+	if n := count(`SELECT count(*) FROM curves WHERE analyte = 'As' AND verdict = 'fail'`); n != 1 {
+		t.Errorf("failing arsenic curves = %d, want 1", n)
+	}
+	if n := count(`SELECT count(*) FROM curves WHERE id = $1 AND analyte = 'As' AND verdict = 'fail'`, badStd); n != 1 {
+		t.Errorf("printed arsenic curve %s is not the failing arsenic curve", badStd)
+	}
+	if !strings.Contains(first, "/v1/trends?instrument="+demoICPMS+"&analyte=Pb&parameter=slope") {
+		t.Errorf("demo does not print the lead slope trend:\n%s", first)
 	}
 	// The ICP-MS loses sensitivity: the last lead slope is well below the first.
-	var first, last float64
+	var firstB1, lastB1 float64
 	if err := db.Pool.QueryRow(ctx, `SELECT
 		(SELECT slope FROM curves WHERE analyte = 'Pb' ORDER BY acquired_at LIMIT 1),
-		(SELECT slope FROM curves WHERE analyte = 'Pb' ORDER BY acquired_at DESC LIMIT 1)`).Scan(&first, &last); err != nil {
+		(SELECT slope FROM curves WHERE analyte = 'Pb' ORDER BY acquired_at DESC LIMIT 1)`).Scan(&firstB1, &lastB1); err != nil {
 		t.Fatal(err)
 	}
-	if last > 0.95*first {
-		t.Errorf("Pb slope fell from %.1f to %.1f; the scenario promises a loss of more than 5 %%", first, last)
+	if lastB1 > 0.95*firstB1 {
+		t.Errorf("Pb slope fell from %.1f to %.1f; the scenario promises a loss of more than 5 %%", firstB1, lastB1)
 	}
+	// The QA round approved passing curves older than a week by the injected clock, and none newer.
+	cutoff := demoClock.AddDate(0, 0, -7)
 	if n := count(`SELECT count(*) FROM curves WHERE status = 'approved'`); n == 0 {
 		t.Errorf("no curve was approved by the demo's QA round")
+	}
+	if n := count(`SELECT count(*) FROM curves WHERE status = 'approved' AND acquired_at >= $1`, cutoff); n != 0 {
+		t.Errorf("%d curves of the last week before the clock were approved", n)
+	}
+	if n := count(`SELECT count(*) FROM curves WHERE status <> 'approved' AND verdict = 'pass' AND acquired_at < $1`, cutoff); n != 0 {
+		t.Errorf("%d passing curves older than a week were left unreviewed", n)
 	}
 	// The loss shows on the trend chart: the Westgard reject rules flag the
 	// lead slope of the ICP-MS against its approved baseline.
@@ -72,17 +110,74 @@ func TestDemo(t *testing.T) {
 	} else {
 		t.Logf("Pb slope trend: reject rules %v", rules)
 	}
+	if n := count(`SELECT count(*) FROM tokens WHERE created_by = 'demo' AND revoked_at IS NULL`); n != 4 {
+		t.Errorf("live demo tokens after the first demo = %d, want 4", n)
+	}
+	oldAdmin := demoPrintedSecret(t, first, "ADMIN")
 
 	out.Reset()
-	if err := run(ctx, []string{"demo", "--database-url", url}, func(string) string { return "" }, &out, io.Discard); err != nil {
+	if err := demoCmd(ctx, args, func(string) string { return "" }, clock, &out, io.Discard); err != nil {
 		t.Fatalf("second demo: %v", err)
 	}
-	if !strings.Contains(out.String(), "loaded before") {
-		t.Errorf("second load did not say the runs were there:\n%s", out.String())
+	second := out.String()
+	if !strings.Contains(second, "loaded before") {
+		t.Errorf("second load did not say the runs were there:\n%s", second)
 	}
 	if n := count(`SELECT count(*) FROM runs`); n != 30 {
 		t.Errorf("runs after a second load = %d, want 30", n)
 	}
+	if got := demoPrintedID(t, second, "nitrate, fails linearity"); got != curved {
+		t.Errorf("second demo prints nitrate curve %s, the first printed %s", got, curved)
+	}
+	if got := demoPrintedID(t, second, "arsenic, mis-pipetted standard"); got != badStd {
+		t.Errorf("second demo prints arsenic curve %s, the first printed %s", got, badStd)
+	}
+	// Tokens: the four of the first demo are revoked, four new ones are live, and the output says so.
+	if n := count(`SELECT count(*) FROM tokens WHERE created_by = 'demo' AND revoked_at IS NULL`); n != 4 {
+		t.Errorf("live demo tokens after the second demo = %d, want 4", n)
+	}
+	if n := count(`SELECT count(*) FROM tokens WHERE created_by = 'demo' AND revoked_at IS NOT NULL`); n != 4 {
+		t.Errorf("revoked demo tokens after the second demo = %d, want 4", n)
+	}
+	if !strings.Contains(second, "Revoked the 4 tokens an earlier demo issued (demo-admin, demo-instrument, demo-lims, demo-qa)") {
+		t.Errorf("second demo does not say it revoked the earlier tokens:\n%s", second)
+	}
+	if strings.Contains(first, "Revoked") {
+		t.Errorf("first demo claims to have revoked tokens:\n%s", first)
+	}
+	if _, err := db.LookupToken(ctx, oldAdmin); err == nil {
+		t.Errorf("the first demo's admin token still works after the second demo")
+	}
+	if _, err := db.LookupToken(ctx, demoPrintedSecret(t, second, "ADMIN")); err != nil {
+		t.Errorf("the second demo's admin token does not work: %v", err)
+	}
+}
+
+// demoPrintedID returns the curve id demo printed on the line starting with label.
+func demoPrintedID(t *testing.T, out, label string) string {
+	t.Helper()
+	for _, line := range strings.Split(out, "\n") {
+		if rest, ok := strings.CutPrefix(strings.TrimSpace(line), label); ok {
+			f := strings.Fields(rest)
+			if len(f) > 0 && len(f[len(f)-1]) == 36 {
+				return f[len(f)-1]
+			}
+		}
+	}
+	t.Fatalf("demo printed no curve id for %q:\n%s", label, out)
+	return ""
+}
+
+// demoPrintedSecret returns the secret of "export NAME=" in demo's output.
+func demoPrintedSecret(t *testing.T, out, name string) string {
+	t.Helper()
+	for _, line := range strings.Split(out, "\n") {
+		if v, ok := strings.CutPrefix(strings.TrimSpace(line), "export "+name+"="); ok {
+			return v
+		}
+	}
+	t.Fatalf("demo printed no %s token:\n%s", name, out)
+	return ""
 }
 
 // demoTrendRejects asks GET /v1/trends for the Pb slope of the ICP-MS and

@@ -35,7 +35,7 @@ func run(ctx context.Context, args []string, getenv func(string) string, stdout,
 	case "migrate":
 		return migrateCmd(ctx, args, getenv, stdout, stderr)
 	case "demo":
-		return demoCmd(ctx, args, getenv, stdout, stderr)
+		return demoCmd(ctx, args, getenv, time.Now, stdout, stderr)
 	case "help", "-h", "--help":
 		fmt.Fprint(stdout, usageText)
 		return nil
