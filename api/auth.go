@@ -100,9 +100,9 @@ func (s *Server) authMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 			// the handler needs too: still a fresh read of the token on
 			// every request, so a revocation holds from the next request
 			// on, on every replica.
-			p, status, err = s.db.LookupTokenAndCurveStatus(c.Request().Context(), secret, c.Param("id"))
+			p, status, err = s.lab.LookupTokenAndCurveStatus(c.Request().Context(), secret, c.Param("id"))
 		} else {
-			p, err = s.db.LookupToken(c.Request().Context(), secret)
+			p, err = s.lab.LookupToken(c.Request().Context(), secret)
 		}
 		if err != nil {
 			if lab.KindOf(err) == lab.KindNotFound {

@@ -43,7 +43,7 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 		seen[string(a.Name)] = true
 		in.Analytes = append(in.Analytes, lab.Analyte{Name: string(a.Name), Unit: string(a.Unit)})
 	}
-	m, created, err := s.db.CreateMethod(ctx, in, p.Actor())
+	m, created, err := s.lab.DefineMethod(ctx, p, in)
 	if err != nil {
 		return nil, err
 	}
@@ -56,7 +56,7 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 
 // ListMethods lists the latest revision of every method.
 func (s *Server) ListMethods(ctx context.Context, _ oapi.ListMethodsRequestObject) (oapi.ListMethodsResponseObject, error) {
-	ms, err := s.db.ListMethods(ctx)
+	ms, err := s.lab.ListMethods(ctx)
 	if err != nil {
 		return nil, err
 	}
@@ -74,9 +74,9 @@ func (s *Server) GetMethod(ctx context.Context, req oapi.GetMethodRequestObject)
 		err error
 	)
 	if req.Params.Revision != nil {
-		m, err = s.db.GetMethodRevision(ctx, req.Name, *req.Params.Revision)
+		m, err = s.lab.GetMethodRevision(ctx, req.Name, *req.Params.Revision)
 	} else {
-		m, err = s.db.GetMethod(ctx, req.Name)
+		m, err = s.lab.GetMethod(ctx, req.Name)
 	}
 	if err != nil {
 		return nil, err
@@ -197,7 +197,7 @@ func (s *Server) CreateToken(ctx context.Context, req oapi.CreateTokenRequestObj
 			scopes = append(scopes, string(sc))
 		}
 	}
-	id, secret, err := s.db.CreateToken(ctx, string(req.Body.Name), scopes, p.Actor())
+	id, secret, err := s.lab.IssueToken(ctx, p, string(req.Body.Name), scopes)
 	if err != nil {
 		return nil, err
 	}
@@ -212,7 +212,7 @@ func (s *Server) CreateToken(ctx context.Context, req oapi.CreateTokenRequestObj
 // DeleteToken revokes a token; the next request with it is refused.
 func (s *Server) DeleteToken(ctx context.Context, req oapi.DeleteTokenRequestObject) (oapi.DeleteTokenResponseObject, error) {
 	p := mustPrincipal(ctx)
-	if err := s.db.RevokeToken(ctx, req.ID.String(), p.Actor()); err != nil {
+	if err := s.lab.RevokeToken(ctx, p, req.ID.String()); err != nil {
 		return nil, err
 	}
 	return oapi.DeleteToken204Response{}, nil

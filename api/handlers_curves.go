@@ -4,20 +4,18 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
-	"errors"
 	"fmt"
 
 	"curvekeeper/api/curveplot"
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
 	"curvekeeper/lab"
-	"curvekeeper/store"
 )
 
 // ListCurves returns curve history newest first, one keyset page at a time.
 func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObject) (oapi.ListCurvesResponseObject, error) {
 	q := req.Params
-	f := store.CurveFilter{
+	f := lab.CurveFilter{
 		Instrument: deref(q.Instrument), Analyte: deref(q.Analyte), Method: deref(q.Method), Cursor: deref(q.Cursor),
 	}
 	if q.Status != nil {
@@ -35,7 +33,7 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 	if q.Limit != nil {
 		f.Limit = *q.Limit
 	}
-	page, err := s.db.ListCurves(ctx, f)
+	page, err := s.lab.ListCurves(ctx, f)
 	if err != nil {
 		return nil, err
 	}
@@ -52,11 +50,11 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 // curve returns a stored curve, from the cache when it is there. The cached
 // copy's fit is exact (fits are immutable); its review status may be old, so
 // callers that report the status use freshCurve.
-func (s *Server) curve(ctx context.Context, id string) (*store.Curve, error) {
+func (s *Server) curve(ctx context.Context, id string) (*lab.Curve, error) {
 	if c, ok := s.curves.get(id); ok {
 		return c, nil
 	}
-	c, err := s.db.GetCurve(ctx, id)
+	c, err := s.lab.GetCurve(ctx, id)
 	if err != nil {
 		return nil, err
 	}
@@ -65,8 +63,8 @@ func (s *Server) curve(ctx context.Context, id string) (*store.Curve, error) {
 }
 
 // freshCurve reads a curve from the database and refreshes the cache.
-func (s *Server) freshCurve(ctx context.Context, id string) (*store.Curve, error) {
-	c, err := s.db.GetCurve(ctx, id)
+func (s *Server) freshCurve(ctx context.Context, id string) (*lab.Curve, error) {
+	c, err := s.lab.GetCurve(ctx, id)
 	if err != nil {
 		return nil, err
 	}
@@ -106,14 +104,11 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 	// The prediction route read the status with its token (authMiddleware).
 	status, ok := prefetchedStatus(ctx, id)
 	if !ok {
-		if status, err = s.db.CurveStatus(ctx, id); err != nil {
+		if status, err = s.lab.CurveStatus(ctx, id); err != nil {
 			return oapi.PredictionResponse{}, err
 		}
 	}
 	r := c.Report
-	if len(r.Coefficients) == 0 {
-		return oapi.PredictionResponse{}, lab.Errorf(lab.KindConflict, "curve %s could not be fitted (see its checks), so it cannot quantify samples", id)
-	}
 	conf := r.Confidence
 	if confidence != nil {
 		conf = *confidence
@@ -123,20 +118,16 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		CurveStatus: oapi.CurveStatus(status), CurveVerdict: oapi.Verdict(r.Verdict),
 		Cautions: calib.Cautions(), Results: make([]oapi.PredictionResult, 0, len(samples)),
 	}
-	for i, sm := range samples {
-		d := 1.0
-		if sm.Dilution != nil {
-			d = *sm.Dilution
+	err = lab.Predict(c, conf, len(samples), func(i int) ([]float64, float64) {
+		if d := samples[i].Dilution; d != nil {
+			return samples[i].Responses, *d
 		}
-		pr, err := r.Predict(sm.Responses, d, conf)
-		if err != nil {
-			var ie *calib.InputError
-			if errors.As(err, &ie) {
-				return oapi.PredictionResponse{}, lab.FieldError(lab.Pointer("samples", i, ie.Field), "%s", ie.Reason)
-			}
-			return oapi.PredictionResponse{}, fmt.Errorf("api: predict sample %d: %w", i, err)
-		}
-		out.Results = append(out.Results, predictionOut(string(sm.ID), pr))
+		return samples[i].Responses, 1
+	}, func(i int, pr calib.Prediction) {
+		out.Results = append(out.Results, predictionOut(string(samples[i].ID), pr))
+	})
+	if err != nil {
+		return oapi.PredictionResponse{}, err
 	}
 	return out, nil
 }
@@ -162,7 +153,7 @@ func (s *Server) ReviewCurve(ctx context.Context, req oapi.ReviewCurveRequestObj
 	p := mustPrincipal(ctx)
 	id := req.ID.String()
 	reason := deref(req.Body.Reason)
-	if _, err := s.db.ReviewCurve(ctx, id, string(req.Body.Decision), reason, p.Actor()); err != nil {
+	if _, err := s.lab.Review(ctx, p, id, string(req.Body.Decision), reason); err != nil {
 		return nil, err
 	}
 	s.curves.drop(id)
@@ -175,7 +166,7 @@ func (s *Server) ReviewCurve(ctx context.Context, req oapi.ReviewCurveRequestObj
 
 // GetCurveAudit returns the audit trail of a curve and of its run.
 func (s *Server) GetCurveAudit(ctx context.Context, req oapi.GetCurveAuditRequestObject) (oapi.GetCurveAuditResponseObject, error) {
-	events, err := s.db.ListAudit(ctx, req.ID.String())
+	events, err := s.lab.ListAudit(ctx, req.ID.String())
 	if err != nil {
 		return nil, err
 	}
@@ -188,7 +179,7 @@ func (s *Server) GetCurveAudit(ctx context.Context, req oapi.GetCurveAuditReques
 
 // auditText renders an audit event's detail for people: the entity and its
 // recorded facts as compact JSON.
-func auditText(e store.AuditEvent) string {
+func auditText(e lab.AuditEvent) string {
 	var compact bytes.Buffer
 	if len(e.Detail) > 0 && json.Compact(&compact, e.Detail) == nil && compact.String() != "{}" {
 		return e.EntityType + " " + e.EntityID + ": " + compact.String()

@@ -22,11 +22,11 @@ func (s *Server) GetHealthz(ctx context.Context, _ oapi.GetHealthzRequestObject)
 func (s *Server) GetReadyz(ctx context.Context, _ oapi.GetReadyzRequestObject) (oapi.GetReadyzResponseObject, error) {
 	ctx, cancel := context.WithTimeout(ctx, 2*time.Second)
 	defer cancel()
-	if err := s.db.Ping(ctx); err != nil {
+	if err := s.lab.Ping(ctx); err != nil {
 		s.log.Warn("readyz: database unreachable", "error", err)
 		return nil, newProblem(http.StatusServiceUnavailable, "the database cannot be reached")
 	}
-	if err := s.db.CheckSchema(ctx); err != nil {
+	if err := s.lab.CheckSchema(ctx); err != nil {
 		return nil, newProblem(http.StatusServiceUnavailable, err.Error())
 	}
 	return oapi.GetReadyz200JSONResponse{Status: oapi.HealthReady}, nil

@@ -8,7 +8,6 @@ import (
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
 	"curvekeeper/lab"
-	"curvekeeper/store"
 )
 
 // CreateRunSamples stores samples measured after their run and quantifies
@@ -27,7 +26,7 @@ func (s *Server) CreateRunSamples(ctx context.Context, req oapi.CreateRunSamples
 		}
 		samples = append(samples, in)
 	}
-	results, err := s.db.AddSamples(ctx, req.ID.String(), samples, p.Actor())
+	results, err := s.lab.AddSamples(ctx, p, req.ID.String(), samples)
 	if err != nil {
 		return nil, err
 	}
@@ -36,7 +35,7 @@ func (s *Server) CreateRunSamples(ctx context.Context, req oapi.CreateRunSamples
 
 // GetRunResults returns every result of a run's samples.
 func (s *Server) GetRunResults(ctx context.Context, req oapi.GetRunResultsRequestObject) (oapi.GetRunResultsResponseObject, error) {
-	results, err := s.db.RunResults(ctx, req.ID.String())
+	results, err := s.lab.RunResults(ctx, req.ID.String())
 	if err != nil {
 		return nil, err
 	}
@@ -45,7 +44,7 @@ func (s *Server) GetRunResults(ctx context.Context, req oapi.GetRunResultsReques
 
 // GetSampleResults returns every result for a LIMS sample id.
 func (s *Server) GetSampleResults(ctx context.Context, req oapi.GetSampleResultsRequestObject) (oapi.GetSampleResultsResponseObject, error) {
-	results, err := s.db.SampleResults(ctx, req.SampleID)
+	results, err := s.lab.SampleResults(ctx, req.SampleID)
 	if err != nil {
 		var se *lab.Error
 		if errors.As(err, &se) && se.Kind == lab.KindNotFound {
@@ -63,7 +62,7 @@ func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEvents
 	if req.Params.Limit != nil {
 		limit = *req.Params.Limit
 	}
-	page, err := s.db.ResultFeed(ctx, deref(req.Params.Since), limit)
+	page, err := s.lab.ResultFeed(ctx, deref(req.Params.Since), limit)
 	if err != nil {
 		return nil, err
 	}
@@ -82,7 +81,7 @@ func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEvents
 	return out, nil
 }
 
-func resultsOut(rs []store.Result) []oapi.SampleResult {
+func resultsOut(rs []lab.Result) []oapi.SampleResult {
 	out := make([]oapi.SampleResult, 0, len(rs))
 	for _, r := range rs {
 		out = append(out, oapi.SampleResult{

@@ -155,7 +155,7 @@ func runInput(body *oapi.RunRequest) lab.RunInput {
 
 // GetRun returns a run as stored.
 func (s *Server) GetRun(ctx context.Context, req oapi.GetRunRequestObject) (oapi.GetRunResponseObject, error) {
-	r, err := s.db.GetRun(ctx, req.ID.String())
+	r, err := s.lab.GetRun(ctx, req.ID.String())
 	if err != nil {
 		return nil, err
 	}

@@ -11,7 +11,6 @@ import (
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
 	"curvekeeper/lab"
-	"curvekeeper/store"
 )
 
 // DefaultBaselineN is the number of approved curves, from the start of the
@@ -29,7 +28,7 @@ type trendQuery struct {
 
 // trendPoint is one curve of a trend.
 type trendPoint struct {
-	Curve      store.CurveSummary
+	Curve      lab.CurveSummary
 	Value      float64
 	HasValue   bool
 	Evaluated  bool
@@ -64,12 +63,12 @@ type trendResult struct {
 // every curve with a value that was not rejected.
 func (s *Server) computeTrend(ctx context.Context, q trendQuery) (*trendResult, error) {
 	if q.Parameter == "" {
-		q.Parameter = store.ParamSlope
+		q.Parameter = lab.ParamSlope
 	}
 	if q.BaselineN == 0 {
 		q.BaselineN = DefaultBaselineN
 	}
-	curves, truncated, err := s.db.TrendSeries(ctx, store.TrendFilter{Instrument: q.Instrument, Analyte: q.Analyte, From: q.From, To: q.To})
+	curves, truncated, err := s.lab.TrendSeries(ctx, lab.TrendFilter{Instrument: q.Instrument, Analyte: q.Analyte, From: q.From, To: q.To})
 	if err != nil {
 		return nil, err
 	}
@@ -126,7 +125,7 @@ func (s *Server) computeTrend(ctx context.Context, q trendQuery) (*trendResult, 
 		t.Notes = append(t.Notes, fmt.Sprintf("%d curve(s) have no %s value (a failed fit or a model without it) and are listed without one.", missing, q.Parameter))
 	}
 	if truncated {
-		t.Notes = append(t.Notes, fmt.Sprintf("The window holds more than %d curves; only the oldest %d were read. Narrow it with from.", store.MaxTrendPoints, store.MaxTrendPoints))
+		t.Notes = append(t.Notes, fmt.Sprintf("The window holds more than %d curves; only the oldest %d were read. Narrow it with from.", lab.MaxTrendPoints, lab.MaxTrendPoints))
 	}
 	return t, nil
 }

@@ -12,7 +12,6 @@ import (
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/lab"
-	"curvekeeper/store"
 )
 
 var _ oapi.StrictServerInterface = (*Server)(nil)
@@ -39,7 +38,6 @@ func DefaultConfig() Config {
 // Server is the HTTP service.
 type Server struct {
 	cfg     Config
-	db      *store.DB
 	lab     *lab.Service
 	log     *slog.Logger
 	echo    *echo.Echo
@@ -50,7 +48,7 @@ type Server struct {
 }
 
 // New builds the server and its routes.
-func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
+func New(cfg Config, svc *lab.Service, log *slog.Logger) (*Server, error) {
 	def := DefaultConfig()
 	if cfg.BodyLimit <= 0 {
 		cfg.BodyLimit = def.BodyLimit
@@ -80,7 +78,7 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 	if err != nil {
 		return nil, err
 	}
-	s := &Server{cfg: cfg, db: db, lab: lab.NewService(db), log: log, echo: e, metrics: newMetrics(db),
+	s := &Server{cfg: cfg, lab: svc, log: log, echo: e, metrics: newMetrics(svc),
 		scopes: newScopeTable(doc), curves: newCurveCache(1024)}
 	if cfg.RateLimit > 0 {
 		s.limiter = newTokenLimiter(cfg.RateLimit, cfg.RateBurst)

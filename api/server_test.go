@@ -85,7 +85,7 @@ func newEnvDB(t testing.TB, cfg api.Config, db *store.DB) *env {
 	t.Helper()
 	logs := &syncBuffer{}
 	logger := slog.New(slog.NewJSONHandler(logs, &slog.HandlerOptions{Level: slog.LevelDebug}))
-	s, err := api.New(cfg, db, logger)
+	s, err := api.New(cfg, lab.NewService(db), logger)
 	if err != nil {
 		t.Fatalf("api.New: %v", err)
 	}

@@ -7,7 +7,6 @@ import (
 	"time"
 
 	"curvekeeper/lab"
-	"curvekeeper/store"
 )
 
 type trendBody struct {
@@ -90,7 +89,7 @@ func TestTrendAPI(t *testing.T) {
 		}
 	})
 	t.Run("other parameters", func(t *testing.T) {
-		for _, p := range store.TrendParameters {
+		for _, p := range lab.TrendParameters {
 			e.api(t, qa, http.MethodGet, path+"&parameter="+p, nil, http.StatusOK, nil)
 		}
 	})

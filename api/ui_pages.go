@@ -21,7 +21,6 @@ import (
 	"curvekeeper/api/curveplot"
 	"curvekeeper/calib"
 	"curvekeeper/lab"
-	"curvekeeper/store"
 )
 
 // The QA pages are server-rendered with html/template from embedded files;
@@ -162,7 +161,7 @@ func (s *Server) registerUI(e *echo.Echo) {
 // listView is the curve list page.
 type listView struct {
 	Filter     url.Values
-	Curves     []store.CurveSummary
+	Curves     []lab.CurveSummary
 	NextCursor string
 	First      bool
 	Problem    string
@@ -194,7 +193,7 @@ func (s *Server) uiCurveList(c echo.Context) error {
 			v.Filter.Set(k, x)
 		}
 	}
-	f := store.CurveFilter{Instrument: v.Filter.Get("instrument"), Analyte: v.Filter.Get("analyte"),
+	f := lab.CurveFilter{Instrument: v.Filter.Get("instrument"), Analyte: v.Filter.Get("analyte"),
 		Status: v.Filter.Get("status"), Verdict: v.Filter.Get("verdict"), Cursor: q.Get("cursor"), Limit: 25}
 	if l := v.Filter.Get("limit"); l != "" {
 		n, err := strconv.Atoi(l)
@@ -212,7 +211,7 @@ func (s *Server) uiCurveList(c echo.Context) error {
 	}
 	status := http.StatusOK
 	if v.Problem == "" {
-		page, err := s.db.ListCurves(c.Request().Context(), f)
+		page, err := s.lab.ListCurves(c.Request().Context(), f)
 		switch {
 		case lab.KindOf(err) == lab.KindInvalid:
 			var se *lab.Error
@@ -232,7 +231,7 @@ func (s *Server) uiCurveList(c echo.Context) error {
 
 // curveView is the curve page.
 type curveView struct {
-	Curve     *store.Curve
+	Curve     *lab.Curve
 	Alt       string
 	Equation  string
 	Audit     []auditRow
@@ -255,7 +254,7 @@ type auditPair struct{ K, V string }
 
 // auditRowOf renders an audit event for people: the actor's token name, the
 // entity, and the recorded facts one per line, keys sorted.
-func auditRowOf(e store.AuditEvent) auditRow {
+func auditRowOf(e lab.AuditEvent) auditRow {
 	r := auditRow{At: e.At, Who: e.Actor, Action: e.Action, Entity: e.EntityType + " " + e.EntityID}
 	if parts := strings.SplitN(e.Actor, ":", 3); len(parts) == 3 && parts[0] == "token" {
 		r.Who, r.TokenID = parts[1], parts[2]
@@ -315,10 +314,10 @@ func (s *Server) curveView(c echo.Context, id string) (*curveView, error) {
 		}
 	}
 	v.Equation = equationText(cv.Report)
-	tq := url.Values{"instrument": {cv.Instrument}, "analyte": {cv.Analyte}, "parameter": {store.ParamSlope}}
+	tq := url.Values{"instrument": {cv.Instrument}, "analyte": {cv.Analyte}, "parameter": {lab.ParamSlope}}
 	v.TrendLink = template.URL("/ui/trends?" + tq.Encode())
 	if sessionOf(c).CanReview() {
-		events, err := s.db.ListAudit(ctx, id)
+		events, err := s.lab.ListAudit(ctx, id)
 		if err != nil {
 			return nil, err
 		}
@@ -377,7 +376,7 @@ func (s *Server) uiReview(c echo.Context) error {
 		problem = "The reason is longer than 2,000 characters."
 	}
 	if problem == "" {
-		_, err := s.db.ReviewCurve(c.Request().Context(), id, decision, reason, sessionOf(c).Principal.Actor())
+		_, err := s.lab.Review(c.Request().Context(), sessionOf(c).Principal, id, decision, reason)
 		s.curves.drop(id)
 		if err == nil {
 			return c.Redirect(http.StatusSeeOther, "/ui/curves/"+url.PathEscape(id)+"?reviewed="+decision)
@@ -403,7 +402,7 @@ func (s *Server) uiReview(c echo.Context) error {
 // trendView is the trend page.
 type trendView struct {
 	Query    url.Values
-	Subjects []store.TrendSubject
+	Subjects []lab.TrendSubject
 	Trend    *trendResult
 	Params   []string
 	Alt      string
@@ -428,10 +427,10 @@ func trendQueryFrom(q url.Values) (trendQuery, url.Values, string) {
 	}
 	tq := trendQuery{Instrument: keep.Get("instrument"), Analyte: keep.Get("analyte"), Parameter: keep.Get("parameter")}
 	if tq.Parameter == "" {
-		tq.Parameter = store.ParamSlope
+		tq.Parameter = lab.ParamSlope
 	}
 	valid := false
-	for _, p := range store.TrendParameters {
+	for _, p := range lab.TrendParameters {
 		valid = valid || p == tq.Parameter
 	}
 	if !valid {
@@ -457,8 +456,8 @@ func trendQueryFrom(q url.Values) (trendQuery, url.Values, string) {
 func (s *Server) uiTrendPage(c echo.Context) error {
 	ctx := c.Request().Context()
 	tq, keep, problem := trendQueryFrom(c.QueryParams())
-	v := trendView{Query: keep, Params: store.TrendParameters, Problem: problem}
-	subjects, err := s.db.TrendSubjects(ctx)
+	v := trendView{Query: keep, Params: lab.TrendParameters, Problem: problem}
+	subjects, err := s.lab.TrendSubjects(ctx)
 	if err != nil {
 		return s.uiFail(c, err)
 	}

@@ -101,7 +101,7 @@ func (s *Server) uiSessionMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 		h.Set("Referrer-Policy", "same-origin")
 		h.Set("Cache-Control", "no-store")
 		if ck, err := c.Cookie(uiSessionCookie); err == nil && ck.Value != "" && len(ck.Value) <= 256 {
-			sess, err := s.db.LookupSession(c.Request().Context(), ck.Value)
+			sess, err := s.lab.LookupSession(c.Request().Context(), ck.Value)
 			switch {
 			case err == nil:
 				u := &uiSession{secret: ck.Value, CSRF: csrfFor(ck.Value),
@@ -188,7 +188,7 @@ func (s *Server) signIn(c echo.Context) error {
 	if _, ok := bearer("Bearer " + token); !ok {
 		return s.renderSignIn(c, http.StatusUnauthorized, "Enter an API token.")
 	}
-	secret, _, err := s.db.CreateSession(c.Request().Context(), token, uiSessionTTL)
+	secret, _, err := s.lab.SignIn(c.Request().Context(), token, uiSessionTTL)
 	if err != nil {
 		if lab.KindOf(err) == lab.KindNotFound {
 			return s.renderSignIn(c, http.StatusUnauthorized, "That token is unknown or revoked.")
@@ -202,7 +202,7 @@ func (s *Server) signIn(c echo.Context) error {
 
 // signOut ends the session.
 func (s *Server) signOut(c echo.Context) error {
-	if err := s.db.DeleteSession(c.Request().Context(), sessionOf(c).secret); err != nil {
+	if err := s.lab.SignOut(c.Request().Context(), sessionOf(c).secret); err != nil {
 		return err
 	}
 	setCookie(c, uiSessionCookie, "", -1)

@@ -64,9 +64,9 @@ func storeCurves(t *testing.T, db *store.DB, m *lab.Method, n int) {
 }
 
 // allPages walks ListCurves from the first page to the last.
-func allPages(t *testing.T, db *store.DB, f store.CurveFilter) (ids []string, pages int) {
+func allPages(t *testing.T, db *store.DB, f lab.CurveFilter) (ids []string, pages int) {
 	t.Helper()
-	var last *store.CurveSummary
+	var last *lab.CurveSummary
 	for {
 		page, err := db.ListCurves(context.Background(), f)
 		if err != nil {
@@ -112,17 +112,17 @@ func TestListCurvesKeysetPagination(t *testing.T) {
 
 	tests := []struct {
 		name      string
-		filter    store.CurveFilter
+		filter    lab.CurveFilter
 		wantCount int
 		wantPages int
 	}{
-		{"all, pages of 7", store.CurveFilter{Limit: 7}, 50, 8},
-		{"all, pages of 50", store.CurveFilter{Limit: 50}, 50, 1},
-		{"all, pages of 1", store.CurveFilter{Limit: 1}, 50, 50},
-		{"ic-03 nitrate", store.CurveFilter{Instrument: "ic-03", Analyte: "nitrate", Limit: 5}, 12, 3},
-		{"time window", store.CurveFilter{From: baseTime.Add(time.Hour), To: baseTime.Add(3 * time.Hour), Limit: 5}, 24, 5},
-		{"pending review", store.CurveFilter{Status: lab.StatusPendingReview, Limit: 9}, 50, 6},
-		{"failed", store.CurveFilter{Verdict: lab.VerdictFail, Limit: 9}, 0, 1},
+		{"all, pages of 7", lab.CurveFilter{Limit: 7}, 50, 8},
+		{"all, pages of 50", lab.CurveFilter{Limit: 50}, 50, 1},
+		{"all, pages of 1", lab.CurveFilter{Limit: 1}, 50, 50},
+		{"ic-03 nitrate", lab.CurveFilter{Instrument: "ic-03", Analyte: "nitrate", Limit: 5}, 12, 3},
+		{"time window", lab.CurveFilter{From: baseTime.Add(time.Hour), To: baseTime.Add(3 * time.Hour), Limit: 5}, 24, 5},
+		{"pending review", lab.CurveFilter{Status: lab.StatusPendingReview, Limit: 9}, 50, 6},
+		{"failed", lab.CurveFilter{Verdict: lab.VerdictFail, Limit: 9}, 0, 1},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
@@ -144,7 +144,7 @@ func TestListCurvesKeysetPagination(t *testing.T) {
 	}
 
 	t.Run("curves stored between pages", func(t *testing.T) {
-		page1, err := db.ListCurves(ctx, store.CurveFilter{Limit: 10})
+		page1, err := db.ListCurves(ctx, lab.CurveFilter{Limit: 10})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -156,7 +156,7 @@ func TestListCurvesKeysetPagination(t *testing.T) {
 				t.Fatal(err)
 			}
 		}
-		ids, _ := allPages(t, db, store.CurveFilter{Limit: 10, Cursor: page1.NextCursor})
+		ids, _ := allPages(t, db, lab.CurveFilter{Limit: 10, Cursor: page1.NextCursor})
 		for _, c := range page1.Curves {
 			for _, id := range ids {
 				if id == c.ID {
@@ -174,15 +174,15 @@ func TestListCurvesKeysetPagination(t *testing.T) {
 
 	for _, bad := range []struct {
 		name   string
-		filter store.CurveFilter
+		filter lab.CurveFilter
 		field  string
 	}{
-		{"garbage cursor", store.CurveFilter{Cursor: "not a cursor"}, "/cursor"},
-		{"short cursor", store.CurveFilter{Cursor: "AAAA"}, "/cursor"},
-		{"limit too big", store.CurveFilter{Limit: store.MaxCurveLimit + 1}, "/limit"},
-		{"negative limit", store.CurveFilter{Limit: -1}, "/limit"},
-		{"unknown status", store.CurveFilter{Status: "done"}, "/status"},
-		{"unknown verdict", store.CurveFilter{Verdict: "ok'; DROP TABLE curves; --"}, "/verdict"},
+		{"garbage cursor", lab.CurveFilter{Cursor: "not a cursor"}, "/cursor"},
+		{"short cursor", lab.CurveFilter{Cursor: "AAAA"}, "/cursor"},
+		{"limit too big", lab.CurveFilter{Limit: lab.MaxCurveLimit + 1}, "/limit"},
+		{"negative limit", lab.CurveFilter{Limit: -1}, "/limit"},
+		{"unknown status", lab.CurveFilter{Status: "done"}, "/status"},
+		{"unknown verdict", lab.CurveFilter{Verdict: "ok'; DROP TABLE curves; --"}, "/verdict"},
 	} {
 		t.Run(bad.name, func(t *testing.T) {
 			_, err := db.ListCurves(ctx, bad.filter)

@@ -9,37 +9,8 @@ import (
 
 	"github.com/jackc/pgx/v5"
 
-	"curvekeeper/calib"
 	"curvekeeper/lab"
 )
-
-// ActionCurveExclude is the audit action, on the original curve, of an
-// exclusion revision.
-const ActionCurveExclude = "curve.exclusion"
-
-// RevisionInput is an exclusion revision of a curve, planned and refitted by
-// the caller (PlanExclusion, then calib.Fit with the original's method
-// revision) before the transaction opens: the original's readings are
-// immutable, so the refit stays valid.
-type RevisionInput struct {
-	OriginalID  string
-	Report      *calib.Report   // the refit, with the excluded readings marked
-	Excluded    []ExcludedPoint // every reading the revision excludes
-	Reason      string
-	RangeReason string // "" when none was given
-	Actor       string
-}
-
-// Exclusion records why a revision left readings out.
-type Exclusion struct {
-	CurveID     string // the revision
-	RevisionOf  string // the original
-	Points      []ExcludedPoint
-	Reason      string
-	RangeReason string
-	Actor       string
-	At          time.Time
-}
 
 // CreateRevision stores a new curve refitted without some readings of
 // in.OriginalID, linked to it by revision_of, and in the same transaction:
@@ -49,7 +20,7 @@ type Exclusion struct {
 // (state_changed events). The original is never changed. Only the current
 // curve of a chain can be revised (KindConflict naming the rule otherwise).
 // It returns the revision's id.
-func (db *DB) CreateRevision(ctx context.Context, in RevisionInput) (string, error) {
+func (db *DB) CreateRevision(ctx context.Context, in lab.RevisionInput) (string, error) {
 	origID, err := parseID("curve", in.OriginalID)
 	if err != nil {
 		return "", err
@@ -84,7 +55,7 @@ SELECT run_id, method, method_revision, instrument, analyte, unit, acquired_at F
 		var existing string
 		err = tx.QueryRow(ctx, `SELECT curve_id::text FROM exclusions WHERE revision_of = $1`, origID).Scan(&existing)
 		if err == nil {
-			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s was already revised as %s; exclude from the revision", RuleCurveIsCurrent, origID, existing)
+			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s was already revised as %s; exclude from the revision", lab.RuleCurveIsCurrent, origID, existing)
 		}
 		if !errors.Is(err, pgx.ErrNoRows) {
 			return classify("select revision of "+origID, err)
@@ -111,11 +82,11 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 		if _, err := tx.Exec(ctx, `INSERT INTO exclusions (curve_id, revision_of, points, reason, range_reason, actor) VALUES ($1, $2, $3, $4, $5, $6)`,
 			pc.id, origID, points, in.Reason, rangeReason, in.Actor); err != nil {
 			if pgCode(err) == codeUniqueViolation {
-				return &lab.Error{Kind: lab.KindConflict, In: lab.InPath, Field: "/id", Message: "rule " + RuleCurveIsCurrent + ": curve " + origID + " was revised concurrently", Err: err}
+				return &lab.Error{Kind: lab.KindConflict, In: lab.InPath, Field: "/id", Message: "rule " + lab.RuleCurveIsCurrent + ": curve " + origID + " was revised concurrently", Err: err}
 			}
 			return classify("insert exclusion", err)
 		}
-		if err := writeAudit(ctx, tx, in.Actor, ActionCurveExclude, entityCurve, origID, map[string]any{
+		if err := writeAudit(ctx, tx, in.Actor, lab.ActionCurveExclude, entityCurve, origID, map[string]any{
 			"revision": pc.id, "points": in.Excluded, "reason": in.Reason, "range_reason": rangeReason, "verdict": pc.verdict,
 		}); err != nil {
 			return err
@@ -131,10 +102,10 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 			return err
 		}
 		events := &eventBuffer{}
-		if err := insertResults(ctx, tx, runID, pending, in.Actor, CauseExclusion, events); err != nil {
+		if err := insertResults(ctx, tx, runID, pending, in.Actor, lab.CauseExclusion, events); err != nil {
 			return err
 		}
-		if _, err := refreshCurveResults(ctx, tx, origID, CauseExclusion, events); err != nil {
+		if _, err := refreshCurveResults(ctx, tx, origID, lab.CauseExclusion, events); err != nil {
 			return err
 		}
 		return flushEvents(ctx, tx, events)
@@ -177,12 +148,12 @@ WHERE s.run_id = $1 AND s.analyte = $2 ORDER BY s.position`, runID, analyte)
 
 // GetExclusion returns the exclusion that made revision id; KindNotFound
 // for a curve that is not a revision.
-func (db *DB) GetExclusion(ctx context.Context, id string) (*Exclusion, error) {
+func (db *DB) GetExclusion(ctx context.Context, id string) (*lab.Exclusion, error) {
 	id, err := parseID("curve", id)
 	if err != nil {
 		return nil, err
 	}
-	e := &Exclusion{CurveID: id}
+	e := &lab.Exclusion{CurveID: id}
 	var points []byte
 	var rr *string
 	err = db.Pool.QueryRow(ctx, `SELECT revision_of, points, reason, range_reason, actor, at FROM exclusions WHERE curve_id = $1`, id).

@@ -16,16 +16,6 @@ import (
 // before it gives up looking for a usable one.
 const inForceScan = 200
 
-// InForce is the curve that applied to an instrument and analyte at a moment.
-type InForce struct {
-	Curve     CurveSummary
-	Basis     string     // why this curve, in words
-	ExpiresAt *time.Time // nil when the method sets no maximum age
-	// LastVerification is the latest verification of the curve at or before
-	// the moment; nil when none.
-	LastVerification *Verification
-}
-
 // CurveInForce returns the curve in force for instrument and analyte at
 // moment at: among the curves acquired at or before at that are current (not
 // superseded by an exclusion revision) and not rejected, the newest that is
@@ -34,8 +24,8 @@ type InForce struct {
 // A newer usable curve supersedes every older one. When the method sets a
 // maximum age and the chosen curve is older than that at at, there is no
 // curve in force. KindNotFound says why there is none, in words.
-func (db *DB) CurveInForce(ctx context.Context, instrument, analyte string, at time.Time) (*InForce, error) {
-	var out *InForce
+func (db *DB) CurveInForce(ctx context.Context, instrument, analyte string, at time.Time) (*lab.InForce, error) {
+	var out *lab.InForce
 	err := db.readOnly(ctx, "curve in force", func(tx pgx.Tx) error {
 		rows, err := tx.Query(ctx, `
 SELECT `+prefixed("c.", curveColumns)+`, m.qc
@@ -48,7 +38,7 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 			return classify("select candidate curves", err)
 		}
 		type candidate struct {
-			c  CurveSummary
+			c  lab.CurveSummary
 			qc lab.QCPolicy
 		}
 		cands, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (candidate, error) {
@@ -84,7 +74,7 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 				skipped = append(skipped, fmt.Sprintf("curve %s (acquired %s) failed its checks and was not approved", c.ID, stamp(c.AcquiredAt)))
 				continue
 			}
-			in := &InForce{Curve: c, Basis: basis}
+			in := &lab.InForce{Curve: c, Basis: basis}
 			if age := k.qc.MaxAge(); age > 0 {
 				exp := c.AcquiredAt.Add(age).UTC()
 				if at.After(exp) {
@@ -117,7 +107,7 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 
 // lastVerification returns the latest verification of curveID at or before
 // at; ok is false when there is none.
-func lastVerification(ctx context.Context, tx pgx.Tx, curveID string, at time.Time) (v Verification, ok bool, err error) {
+func lastVerification(ctx context.Context, tx pgx.Tx, curveID string, at time.Time) (v lab.Verification, ok bool, err error) {
 	rows, err := tx.Query(ctx, `
 SELECT id, curve_id, kind, level, concentration, responses, found, recovery_pct, difference_pct, limit_pct, passed,
        detail, at, created_at, created_by
@@ -125,8 +115,8 @@ FROM verifications WHERE curve_id = $1 AND at <= $2 ORDER BY at DESC, id DESC LI
 	if err != nil {
 		return v, false, classify("select last verification", err)
 	}
-	vs, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (Verification, error) {
-		var v Verification
+	vs, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.Verification, error) {
+		var v lab.Verification
 		err := row.Scan(&v.ID, &v.CurveID, &v.Kind, &v.Level, &v.Concentration, &v.Responses, &v.Found, &v.RecoveryPct,
 			&v.DifferencePct, &v.LimitPct, &v.Passed, &v.Detail, &v.At, &v.CreatedAt, &v.CreatedBy)
 		return v, err

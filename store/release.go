@@ -13,13 +13,6 @@ import (
 	"curvekeeper/lab"
 )
 
-// Release states of a sample result.
-const (
-	ReleaseProvisional = "provisional" // the curve awaits review
-	ReleaseReleasable  = "releasable"  // the curve is approved and QC does not hold the result back
-	ReleaseWithheld    = "withheld"    // the curve or QC holds the result back; the reason says why
-)
-
 // curveFacts is what a result's release state depends on: its curve's
 // review and verdict, whether it was superseded by an exclusion revision, and
 // the verification standards measured against it.
@@ -63,17 +56,17 @@ type verificationFact struct {
 func releaseOf(f *curveFacts, acquiredAt time.Time) (state, reason string) {
 	switch {
 	case f.SupersededBy != "":
-		return ReleaseWithheld, fmt.Sprintf("curve %s was superseded by its revision %s (standards excluded); this sample's current result is the one against the revision", f.ID, f.SupersededBy)
+		return lab.ReleaseWithheld, fmt.Sprintf("curve %s was superseded by its revision %s (standards excluded); this sample's current result is the one against the revision", f.ID, f.SupersededBy)
 	case !f.Fitted:
-		return ReleaseWithheld, fmt.Sprintf("curve %s could not be fitted, so no concentration can be released", f.ID)
+		return lab.ReleaseWithheld, fmt.Sprintf("curve %s could not be fitted, so no concentration can be released", f.ID)
 	case f.Status == lab.StatusRejected:
 		r := fmt.Sprintf("curve %s was rejected in review by %s", f.ID, f.ReviewedBy)
 		if f.ReviewReason != "" {
 			r += ": " + f.ReviewReason
 		}
-		return ReleaseWithheld, r
+		return lab.ReleaseWithheld, r
 	case f.Verdict == lab.VerdictFail && f.Status != lab.StatusApproved:
-		return ReleaseWithheld, fmt.Sprintf("curve %s failed its acceptance checks (%s) and has not been approved", f.ID, strings.Join(f.FailedChecks, ", "))
+		return lab.ReleaseWithheld, fmt.Sprintf("curve %s failed its acceptance checks (%s) and has not been approved", f.ID, strings.Join(f.FailedChecks, ", "))
 	}
 	var last *verificationFact
 	for i := range f.Checks {
@@ -87,11 +80,11 @@ func releaseOf(f *curveFacts, acquiredAt time.Time) (state, reason string) {
 		if last.DifferencePct != nil {
 			d = "%D " + strconv.FormatFloat(*last.DifferencePct, 'f', 1, 64) + " %"
 		}
-		return ReleaseWithheld, fmt.Sprintf("the %s calibration verification %s at %s failed (%s, limit ±%s %%); results acquired after it are withheld until a passing verification or a new curve",
+		return lab.ReleaseWithheld, fmt.Sprintf("the %s calibration verification %s at %s failed (%s, limit ±%s %%); results acquired after it are withheld until a passing verification or a new curve",
 			last.Kind, last.ID, last.At.UTC().Format(time.RFC3339), d, strconv.FormatFloat(last.LimitPct, 'g', -1, 64))
 	}
 	if f.Status == lab.StatusPendingReview {
-		return ReleaseProvisional, fmt.Sprintf("curve %s awaits review by a qualified person", f.ID)
+		return lab.ReleaseProvisional, fmt.Sprintf("curve %s awaits review by a qualified person", f.ID)
 	}
 	r := fmt.Sprintf("curve %s was approved by %s", f.ID, f.ReviewedBy)
 	if f.Verdict == lab.VerdictFail {
@@ -102,7 +95,7 @@ func releaseOf(f *curveFacts, acquiredAt time.Time) (state, reason string) {
 	} else {
 		r += "; no verification before this sample failed"
 	}
-	return ReleaseReleasable, r
+	return lab.ReleaseReleasable, r
 }
 
 // loadCurveFacts reads the facts of curve id in tx. The caller holds the
@@ -185,7 +178,7 @@ func refreshCurveResults(ctx context.Context, tx pgx.Tx, id, cause string, event
 		ids, states, reasons = append(ids, r.id), append(states, state), append(reasons, reason)
 		if state != r.state {
 			changed++
-			events.add(resultEvent{ResultID: r.id, Kind: EventStateChanged, Cause: cause, State: state, Previous: r.state, Reason: reason})
+			events.add(resultEvent{ResultID: r.id, Kind: lab.EventStateChanged, Cause: cause, State: state, Previous: r.state, Reason: reason})
 		}
 	}
 	if len(ids) == 0 {

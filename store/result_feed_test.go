@@ -15,7 +15,7 @@ import (
 // event it was served.
 type feedReader struct {
 	cursor string
-	events []store.ResultEvent
+	events []lab.ResultEvent
 }
 
 // poll reads pages of size limit until the feed has nothing more now.
@@ -37,7 +37,7 @@ func (r *feedReader) poll(t *testing.T, db *store.DB, limit int) {
 
 // checkOrderedOnce fails unless the events have strictly increasing seq
 // (so none is served twice) and are exactly the events stored.
-func checkOrderedOnce(t *testing.T, db *store.DB, got []store.ResultEvent) {
+func checkOrderedOnce(t *testing.T, db *store.DB, got []lab.ResultEvent) {
 	t.Helper()
 	for i := 1; i < len(got); i++ {
 		if got[i].Seq <= got[i-1].Seq {
@@ -142,9 +142,9 @@ func TestResultFeedConcurrentWriters(t *testing.T) {
 	created, changed := map[int64]int{}, 0
 	for _, e := range reader.events {
 		switch e.Kind {
-		case store.EventCreated:
+		case lab.EventCreated:
 			created[e.ResultID]++
-		case store.EventStateChanged:
+		case lab.EventStateChanged:
 			changed++
 		}
 	}
@@ -161,7 +161,7 @@ func TestResultFeedConcurrentWriters(t *testing.T) {
 	last := map[int64]string{}
 	for _, e := range reader.events {
 		prev, seen := last[e.ResultID]
-		if e.Kind == store.EventStateChanged && (!seen || prev != e.Previous) {
+		if e.Kind == lab.EventStateChanged && (!seen || prev != e.Previous) {
 			t.Errorf("seq %d: result %d changes from %q but the feed left it %q", e.Seq, e.ResultID, e.Previous, prev)
 		}
 		last[e.ResultID] = e.State

@@ -23,8 +23,8 @@ const sqlSelectLatestMethod = sqlSelectMethod + ` WHERE name = $1 ORDER BY revis
 // exist is GetMethod's KindNotFound error. The method read is fresh, so a
 // run still uses the method's latest revision at the time it is stored.
 func (db *DB) ReadForRun(ctx context.Context, q lab.RunReadsQuery) (*lab.RunReads, error) {
-	if q.Limit < 1 || q.Limit > MaxTrendPoints {
-		return nil, lab.Errorf(lab.KindInvalid, "limit must be in [1, %d]", MaxTrendPoints)
+	if q.Limit < 1 || q.Limit > lab.MaxTrendPoints {
+		return nil, lab.Errorf(lab.KindInvalid, "limit must be in [1, %d]", lab.MaxTrendPoints)
 	}
 	b := &pgx.Batch{}
 	if q.Key != "" {

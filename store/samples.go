@@ -65,7 +65,7 @@ WHERE c.run_id = $1 AND NOT EXISTS (SELECT 1 FROM exclusions e WHERE e.revision_
 // naming the field): the run has a curve for the analyte; a sample id
 // appears once per analyte in the run (with the earlier samples); a sample
 // was not acquired before the run's standards.
-func (db *DB) AddSamples(ctx context.Context, runID string, samples []lab.Sample, actor string) ([]Result, error) {
+func (db *DB) AddSamples(ctx context.Context, runID string, samples []lab.Sample, actor string) ([]lab.Result, error) {
 	runID, err := parseID("run", runID)
 	if err != nil {
 		return nil, err
@@ -84,7 +84,7 @@ func (db *DB) AddSamples(ctx context.Context, runID string, samples []lab.Sample
 			in[i].AcquiredAt = &now
 		}
 	}
-	var out []Result
+	var out []lab.Result
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
 		// The curve locks come first: they serialise writers of this run's
 		// samples, so the next position read below is this transaction's own.
@@ -148,7 +148,7 @@ FROM runs r WHERE r.id = $1`, runID).Scan(&runAt, &next)
 			return classify("insert samples of run "+runID, err)
 		}
 		events := &eventBuffer{}
-		if err := insertResults(ctx, tx, runID, pending, actor, CauseSamplesAdd, events); err != nil {
+		if err := insertResults(ctx, tx, runID, pending, actor, lab.CauseSamplesAdd, events); err != nil {
 			return err
 		}
 		ids := make([]string, 0, len(in))

@@ -17,24 +17,14 @@ const (
 	ActionSessionDelete = "session.delete"
 )
 
-// MaxSessionTTL bounds the lifetime of a session of the QA pages.
-const MaxSessionTTL = 24 * time.Hour
-
-// Session is a signed-in browser session of the QA pages: the token it was
-// opened with (scopes read afresh) and when it ends.
-type Session struct {
-	Token     lab.Principal
-	ExpiresAt time.Time
-}
-
 // CreateSession exchanges an API token's secret for a new session of ttl
 // (at most MaxSessionTTL) and returns the session's secret, shown only here
 // (the database keeps its SHA-256), and the token. An unknown or revoked
 // token is KindNotFound. Expired sessions are pruned in the same
 // transaction, and the sign-in is audited under the token.
 func (db *DB) CreateSession(ctx context.Context, tokenSecret string, ttl time.Duration) (string, lab.Principal, error) {
-	if ttl <= 0 || ttl > MaxSessionTTL {
-		return "", lab.Principal{}, lab.Errorf(lab.KindInvalid, "session lifetime must be in (0, %s]", MaxSessionTTL)
+	if ttl <= 0 || ttl > lab.MaxSessionTTL {
+		return "", lab.Principal{}, lab.Errorf(lab.KindInvalid, "session lifetime must be in (0, %s]", lab.MaxSessionTTL)
 	}
 	tok, err := db.LookupToken(ctx, tokenSecret)
 	if err != nil {
@@ -65,18 +55,18 @@ func (db *DB) CreateSession(ctx context.Context, tokenSecret string, ttl time.Du
 // actorOf names a token in the audit trail as the api does.
 // LookupSession returns the live session whose secret is secret. An unknown
 // or expired session, or one whose token was revoked, is KindNotFound.
-func (db *DB) LookupSession(ctx context.Context, secret string) (Session, error) {
-	var s Session
+func (db *DB) LookupSession(ctx context.Context, secret string) (lab.Session, error) {
+	var s lab.Session
 	err := db.Pool.QueryRow(ctx, `
 SELECT t.id, t.name, t.scopes, s.expires_at
 FROM ui_sessions s JOIN tokens t ON t.id = s.token_id
 WHERE s.id_hash = $1 AND s.expires_at > now() AND t.revoked_at IS NULL`, hashSecret(secret)).
 		Scan(&s.Token.TokenID, &s.Token.Name, &s.Token.Scopes, &s.ExpiresAt)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return Session{}, lab.Errorf(lab.KindNotFound, "no such session")
+		return lab.Session{}, lab.Errorf(lab.KindNotFound, "no such session")
 	}
 	if err != nil {
-		return Session{}, classify("look up session", err)
+		return lab.Session{}, classify("look up session", err)
 	}
 	return s, nil
 }

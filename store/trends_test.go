@@ -7,7 +7,6 @@ import (
 	"time"
 
 	"curvekeeper/lab"
-	"curvekeeper/store"
 )
 
 func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
@@ -38,7 +37,7 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 		}
 	}
 	t.Run("series oldest first, every status", func(t *testing.T) {
-		got, truncated, err := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02", Analyte: "nitrate"})
+		got, truncated, err := db.TrendSeries(ctx, lab.TrendFilter{Instrument: "ic-02", Analyte: "nitrate"})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -49,7 +48,7 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 			if c.ID != nitrate[i] {
 				t.Errorf("curve %d = %s, want %s", i, c.ID, nitrate[i])
 			}
-			if v, ok := c.ParamValue(store.ParamSlope); !ok || v <= 0 {
+			if v, ok := c.ParamValue(lab.ParamSlope); !ok || v <= 0 {
 				t.Errorf("slope of curve %d = %v, %v", i, v, ok)
 			}
 		}
@@ -58,7 +57,7 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 		}
 	})
 	t.Run("window", func(t *testing.T) {
-		got, _, err := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02", Analyte: "nitrate",
+		got, _, err := db.TrendSeries(ctx, lab.TrendFilter{Instrument: "ic-02", Analyte: "nitrate",
 			From: baseTime.Add(24 * time.Hour), To: baseTime.Add(3 * 24 * time.Hour)})
 		if err != nil {
 			t.Fatal(err)
@@ -68,7 +67,7 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 		}
 	})
 	t.Run("needs instrument and analyte", func(t *testing.T) {
-		_, _, err := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02"})
+		_, _, err := db.TrendSeries(ctx, lab.TrendFilter{Instrument: "ic-02"})
 		wantKind(t, err, lab.KindInvalid)
 	})
 	t.Run("recent approved slopes, oldest first, before the new curve", func(t *testing.T) {
@@ -76,7 +75,7 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		all, _, _ := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02", Analyte: "nitrate"})
+		all, _, _ := db.TrendSeries(ctx, lab.TrendFilter{Instrument: "ic-02", Analyte: "nitrate"})
 		want := []float64{*all[1].Slope, *all[2].Slope}
 		if len(got) != 2 || got[0] != want[0] || got[1] != want[1] {
 			t.Errorf("got %v, want %v (the two newest approved, oldest first)", got, want)

@@ -36,7 +36,7 @@ func replica(t *testing.T, url string) *httptest.Server {
 		t.Fatal(err)
 	}
 	t.Cleanup(db.Close)
-	srv, err := api.New(api.Config{}, db, slog.New(slog.DiscardHandler))
+	srv, err := api.New(api.Config{}, lab.NewService(db), slog.New(slog.DiscardHandler))
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -114,7 +114,7 @@ func TestBulkLoadServesHistory(t *testing.T) {
 	if err := bulkLoadCurves(ctx, url, 400, 120); err != nil {
 		t.Fatal(err)
 	}
-	f := store.CurveFilter{Instrument: historyInstrument, Analyte: benchAnalyte, Limit: 50}
+	f := lab.CurveFilter{Instrument: historyInstrument, Analyte: benchAnalyte, Limit: 50}
 	seen := 0
 	var first string
 	for page := 0; page < 5; page++ {

@@ -184,7 +184,7 @@ func demoPrintedSecret(t *testing.T, out, name string) string {
 // returns the reject rules it reports.
 func demoTrendRejects(t *testing.T, ctx context.Context, db *store.DB) []string {
 	t.Helper()
-	srv, err := api.New(api.Config{}, db, slog.New(slog.NewTextHandler(io.Discard, nil)))
+	srv, err := api.New(api.Config{}, lab.NewService(db), slog.New(slog.NewTextHandler(io.Discard, nil)))
 	if err != nil {
 		t.Fatal(err)
 	}
