@@ -427,21 +427,7 @@ func (t *text) free() { textPool.Put(t) }
 func (t *text) s(v string) *text { t.b = append(t.b, v...); return t }
 
 // g appends v with six significant digits (as fmtG).
-func (t *text) g(v float64) *text { t.b = appendG6(t.b, v); return t }
-
-// gc appends v exactly as g does, from a small cache: for the values that
-// recur run after run (policy thresholds and t and F quantiles), whose
-// formatting would otherwise cost more than the arithmetic of the check.
-func (t *text) gc(v float64) *text { t.b = append(t.b, cachedG(v)...); return t }
-
-// gCache caches fmtG by the value's bits.
-var gCache = newSetCache[uint64, string](256)
-
-// cachedG returns fmtG(v), from gCache when it holds v.
-func cachedG(v float64) string {
-	b := math.Float64bits(v)
-	return gCache.get(b, b, func() string { return fmtG(v) })
-}
+func (t *text) g(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 6, 64); return t }
 
 // g10 appends v with ten significant digits.
 func (t *text) g10(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 10, 64); return t }
