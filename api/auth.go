@@ -85,6 +85,9 @@ func (s *Server) authMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 		if !strings.HasPrefix(c.Request().URL.Path, "/v1/") {
 			return next(c)
 		}
+		if secs := s.authFailureWait(c); secs > 0 {
+			return newProblem(http.StatusTooManyRequests, tooManyFailures(secs))
+		}
 		secret, ok := bearer(c.Request().Header.Get(echo.HeaderAuthorization))
 		if !ok {
 			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="curvekeeper"`)
@@ -106,6 +109,7 @@ func (s *Server) authMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 		}
 		if err != nil {
 			if lab.KindOf(err) == lab.KindNotFound {
+				s.authFailed(c)
 				c.Response().Header().Set("WWW-Authenticate", `Bearer realm="curvekeeper", error="invalid_token"`)
 				return newProblem(http.StatusUnauthorized, "the token is unknown or revoked")
 			}

@@ -162,6 +162,7 @@ func TestBadInputRefusedAndNothingStored(t *testing.T) {
 		{name: "history verdict unknown", method: http.MethodGet, path: "/v1/curves?verdict=maybe", status: 400, pointer: "query:verdict"},
 		{name: "history from not a time", method: http.MethodGet, path: "/v1/curves?from=yesterday", status: 400, pointer: "query:from"},
 		{name: "method revision 0", method: http.MethodGet, path: "/v1/methods/nitrate-uv?revision=0", status: 400, pointer: "query:revision"},
+		{name: "method revision past int32", method: http.MethodGet, path: "/v1/methods/nitrate-uv?revision=2147483648", status: 400, pointer: "query:revision"},
 		{name: "delete token id not a UUID", method: http.MethodDelete, path: "/v1/tokens/abc", status: 400, pointer: "path:id"},
 	}
 	runBadCases(t, e, cases)

@@ -1,6 +1,7 @@
 package api
 
 import (
+	"net/http"
 	"strconv"
 	"sync"
 	"time"
@@ -76,7 +77,7 @@ func (m *metrics) middleware(next echo.HandlerFunc) echo.HandlerFunc {
 		if route == "" {
 			route = "unmatched"
 		}
-		k := seriesKey{c.Request().Method, route, c.Response().Status}
+		k := seriesKey{methodLabel(c.Request().Method), route, c.Response().Status}
 		v, ok := m.series.Load(k)
 		if !ok {
 			status := strconv.Itoa(k.status)
@@ -90,4 +91,17 @@ func (m *metrics) middleware(next echo.HandlerFunc) echo.HandlerFunc {
 		p.duration.Observe(time.Since(start).Seconds())
 		return nil
 	}
+}
+
+// methodLabel maps a request's method to a label value from a fixed set: the
+// methods of RFC 9110 and PATCH, and "other" for anything else. Go accepts any
+// token as a method, so labelling the raw value would let any client, without
+// a token, add a series (and a cache entry) per made-up method.
+func methodLabel(m string) string {
+	switch m {
+	case http.MethodGet, http.MethodHead, http.MethodPost, http.MethodPut, http.MethodPatch,
+		http.MethodDelete, http.MethodOptions, http.MethodConnect, http.MethodTrace:
+		return m
+	}
+	return "other"
 }

@@ -1,10 +1,13 @@
 package api
 
 import (
+	"bytes"
 	"context"
 	"crypto/rand"
 	"encoding/hex"
+	"errors"
 	"fmt"
+	"io"
 	"log/slog"
 	"net/http"
 	"regexp"
@@ -109,8 +112,25 @@ func (s *Server) bodyLimitMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 			return newProblem(http.StatusRequestEntityTooLarge,
 				fmt.Sprintf("the body is %d bytes; the limit is %d", req.ContentLength, s.cfg.BodyLimit))
 		}
-		if req.Body != nil {
-			req.Body = http.MaxBytesReader(c.Response(), req.Body, s.cfg.BodyLimit)
+		if req.Body == nil || req.Body == http.NoBody {
+			return next(c)
+		}
+		req.Body = http.MaxBytesReader(c.Response(), req.Body, s.cfg.BodyLimit)
+		if req.ContentLength < 0 {
+			// A body of unknown length (chunked) is read here, so that one
+			// over the limit gets 413 like one whose Content-Length says so,
+			// whichever decoder would have met the limit first.
+			raw, err := io.ReadAll(req.Body)
+			var mbe *http.MaxBytesError
+			if errors.As(err, &mbe) {
+				c.Response().Header().Set("Connection", "close")
+				return newProblem(http.StatusRequestEntityTooLarge,
+					fmt.Sprintf("the body is over the limit of %d bytes", mbe.Limit))
+			}
+			if err != nil {
+				return newProblem(http.StatusBadRequest, "the body could not be read: "+err.Error())
+			}
+			req.Body, req.ContentLength = io.NopCloser(bytes.NewReader(raw)), int64(len(raw))
 		}
 		return next(c)
 	}

@@ -115,3 +115,59 @@ func (s *Server) rateLimitMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 			"); retry after "+strconv.Itoa(secs)+" s")
 	}
 }
+
+// Failed authentications (an unknown or revoked bearer token, a refused UI
+// sign-in) are limited per client address: AuthFailureBurst at once, then one
+// every 1/AuthFailureRate seconds. Past that the address gets 429 with
+// Retry-After before its token is even looked up, so guessing tokens costs the
+// guesser time and the database nothing. A client with a valid token is never
+// counted. The address is the peer's (Echo's IPExtractor is ExtractIPDirect):
+// behind a proxy every client shares the proxy's address, so set the proxy's
+// own limits there.
+const (
+	AuthFailureRate  = 1.0 / 6 // per second: 10 a minute sustained
+	AuthFailureBurst = 20
+)
+
+// blocked reports whether key's bucket is empty now, and for how long.
+// Unlike allow it takes nothing.
+func (l *tokenLimiter) blocked(key string, now time.Time) (bool, time.Duration) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	b, ok := l.buckets[key]
+	if !ok {
+		return false, 0
+	}
+	if tokens := b.TokensAt(now); tokens < 1 {
+		return true, time.Duration((1 - tokens) / float64(l.limit) * float64(time.Second))
+	}
+	return false, 0
+}
+
+// authFailureWait returns, when the client's address has failed to
+// authenticate too often, the whole seconds (at least 1) until it may try
+// again, and sets Retry-After to it; 0 otherwise.
+func (s *Server) authFailureWait(c echo.Context) int {
+	if s.authFailures == nil {
+		return 0
+	}
+	blocked, wait := s.authFailures.blocked(c.RealIP(), time.Now())
+	if !blocked {
+		return 0
+	}
+	secs := max(1, int(math.Ceil(wait.Seconds())))
+	c.Response().Header().Set("Retry-After", strconv.Itoa(secs))
+	return secs
+}
+
+// tooManyFailures is the text of the 429 that authFailureWait implies.
+func tooManyFailures(secs int) string {
+	return "too many failed authentications from this address; retry in " + strconv.Itoa(secs) + " s"
+}
+
+// authFailed counts one failed authentication of the client's address.
+func (s *Server) authFailed(c echo.Context) {
+	if s.authFailures != nil {
+		s.authFailures.allow(c.RealIP(), time.Now())
+	}
+}

@@ -27,6 +27,11 @@ type Config struct {
 	// negative RateLimit turns limiting off.
 	RateLimit float64
 	RateBurst int
+	// AuthFailureBurst is how many failed authentications one client
+	// address may make at once before 429 (then one per 1/AuthFailureRate
+	// seconds). Zero means the default, AuthFailureBurst; negative turns the
+	// limit off.
+	AuthFailureBurst int
 }
 
 // DefaultConfig returns the defaults used when a field is zero.
@@ -45,6 +50,9 @@ type Server struct {
 	scopes  scopeTable
 	curves  *curveCache
 	limiter *tokenLimiter // nil when rate limiting is off
+	// authFailures counts failed authentications per client address; nil
+	// when that limit is off.
+	authFailures *tokenLimiter
 }
 
 // New builds the server and its routes.
@@ -79,12 +87,19 @@ func New(cfg Config, svc *lab.Service, log *slog.Logger) (*Server, error) {
 		return nil, err
 	}
 	s := &Server{cfg: cfg, lab: svc, log: log, echo: e, metrics: newMetrics(svc),
-		scopes: newScopeTable(doc), curves: newCurveCache(1024)}
+		scopes: newScopeTable(doc), curves: newCurveCache(1024),
+		authFailures: newTokenLimiter(AuthFailureRate, AuthFailureBurst)}
+	switch {
+	case cfg.AuthFailureBurst < 0:
+		s.authFailures = nil
+	case cfg.AuthFailureBurst > 0:
+		s.authFailures = newTokenLimiter(AuthFailureRate, cfg.AuthFailureBurst)
+	}
 	if cfg.RateLimit > 0 {
 		s.limiter = newTokenLimiter(cfg.RateLimit, cfg.RateBurst)
 	}
 	e.HTTPErrorHandler = s.errorHandler
-	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware,
+	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware, s.framingMiddleware,
 		s.timeoutMiddleware, s.bodyLimitMiddleware, s.authMiddleware, s.rateLimitMiddleware, validator)
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
 	s.registerUI(e)

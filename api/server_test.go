@@ -89,7 +89,11 @@ func newEnvDB(t testing.TB, cfg api.Config, db *store.DB) *env {
 	if err != nil {
 		t.Fatalf("api.New: %v", err)
 	}
-	srv := httptest.NewServer(s.Handler())
+	// As the service serves: through the framing guard (api.FramingGuard).
+	srv := httptest.NewUnstartedServer(s.Handler())
+	srv.Listener = api.FramingGuard(srv.Listener)
+	srv.Config.ConnContext = api.FramingContext
+	srv.Start()
 	t.Cleanup(func() {
 		srv.Close()
 		if t.Failed() {
@@ -442,6 +446,33 @@ func TestMetricsUseRouteTemplates(t *testing.T) {
 	}
 	if strings.Contains(text, id) || strings.Contains(text, run.ID.String()) {
 		t.Error("metrics carry a raw id")
+	}
+}
+
+// TestMetricsBoundUnknownMethods: made-up method names, sent without a token,
+// all count under one label value, so no client can grow /metrics.
+func TestMetricsBoundUnknownMethods(t *testing.T) {
+	t.Parallel()
+	e := newEnv(t)
+	for i := range 50 {
+		m := "X" + strings.Repeat("Y", 200) + strconv.Itoa(i)
+		req, err := http.NewRequest(m, e.srv.URL+"/v1/curves", nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		resp, err := e.srv.Client().Do(req)
+		if err != nil {
+			t.Fatal(err)
+		}
+		resp.Body.Close()
+	}
+	r := e.get(t, "", "/metrics")
+	text := string(r.body)
+	if strings.Contains(text, "YYYY") {
+		t.Error("metrics carry a made-up method name")
+	}
+	if got := strings.Count(text, `curvekeeper_http_requests_total{method="other"`); got != 1 {
+		t.Errorf("made-up methods fall into %d series, want 1:\n%s", got, text)
 	}
 }
 

@@ -10,6 +10,7 @@ import (
 	"net/http"
 	"net/url"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
 
@@ -184,6 +185,9 @@ func (s *Server) signIn(c echo.Context) error {
 	if err != nil || !sameToken(c.FormValue(uiCSRFField), ck.Value) {
 		return s.uiError(c, http.StatusForbidden, "The sign-in form's security token is missing or expired. Open the sign-in page again.")
 	}
+	if secs := s.authFailureWait(c); secs > 0 {
+		return s.uiError(c, http.StatusTooManyRequests, "Too many failed sign-ins from this address. Wait "+strconv.Itoa(secs)+" s and try again.")
+	}
 	token := strings.TrimSpace(c.FormValue("token"))
 	if _, ok := bearer("Bearer " + token); !ok {
 		return s.renderSignIn(c, http.StatusUnauthorized, "Enter an API token.")
@@ -191,6 +195,7 @@ func (s *Server) signIn(c echo.Context) error {
 	secret, _, err := s.lab.SignIn(c.Request().Context(), token, uiSessionTTL)
 	if err != nil {
 		if lab.KindOf(err) == lab.KindNotFound {
+			s.authFailed(c)
 			return s.renderSignIn(c, http.StatusUnauthorized, "That token is unknown or revoked.")
 		}
 		return err

@@ -370,3 +370,27 @@ func TestNullableChecks(t *testing.T) {
 		}
 	}
 }
+
+// TestIntegerParametersAreBounded: every integer query or path parameter has
+// a maximum that fits the database's 32-bit integers, so an out-of-range value
+// is refused by the validator (400) rather than reaching the driver (500).
+func TestIntegerParametersAreBounded(t *testing.T) {
+	doc := load(t)
+	n := 0
+	for _, o := range operations(doc) {
+		for _, pr := range o.op.Parameters {
+			p := pr.Value
+			if p.Schema == nil || p.Schema.Value == nil || !p.Schema.Value.Type.Is("integer") {
+				continue
+			}
+			n++
+			s := p.Schema.Value
+			if s.Max == nil || *s.Max > 2147483647 || s.Min == nil {
+				t.Errorf("%s: integer parameter %q lacks a minimum and a maximum ≤ 2^31−1", o, p.Name)
+			}
+		}
+	}
+	if n == 0 {
+		t.Error("found no integer parameter; the walk is wrong")
+	}
+}

@@ -159,3 +159,19 @@ func retryable(err error) bool {
 	}
 	return false
 }
+
+// DescribeURL names where a database connection string points (user, host,
+// port and database) and nothing else: a password may sit in the URL's user
+// part, in a ?password= parameter or in a key=value string, and none of them
+// may reach a terminal or a log. A string pgconn cannot parse is not echoed.
+func DescribeURL(u string) string {
+	cfg, err := pgconn.ParseConfig(u)
+	if err != nil {
+		return "(a connection string that does not parse)"
+	}
+	host := cfg.Host
+	if strings.HasPrefix(host, "/") {
+		host = "[" + host + "]" // a Unix socket folder
+	}
+	return fmt.Sprintf("postgres://%s@%s:%d/%s", cfg.User, host, cfg.Port, cfg.Database)
+}

@@ -248,10 +248,19 @@ func TestConfigFromEnvironment(t *testing.T) {
 	}
 }
 
+// TestRedactURL: a password never shows, in any of the forms libpq accepts
+// (the user part of a URL, a ?password= parameter, a key=value string).
 func TestRedactURL(t *testing.T) {
-	got := redactURL("postgres://user:secret@db:5432/x")
-	if strings.Contains(got, "secret") || !strings.Contains(got, "user") {
-		t.Errorf("redactURL = %q", got)
+	for _, tc := range []struct{ in, want string }{
+		{"postgres://user:secret@db:5432/x", "postgres://user@db:5432/x"},
+		{"postgres://user@db:5433/x?password=secret&sslmode=disable", "postgres://user@db:5433/x"},
+		{"host=db port=5434 dbname=x user=user password=secret sslmode=disable", "postgres://user@db:5434/x"},
+		{"postgres://user:secret@db:notaport/x", "(a connection string that does not parse)"},
+	} {
+		got := redactURL(tc.in)
+		if strings.Contains(got, "secret") || got != tc.want {
+			t.Errorf("redactURL(%q) = %q, want %q", tc.in, got, tc.want)
+		}
 	}
 }
 

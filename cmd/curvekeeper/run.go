@@ -159,6 +159,7 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 		WriteTimeout:      cfg.RequestTimeout + 15*time.Second,
 		IdleTimeout:       120 * time.Second,
 		ErrorLog:          slog.NewLogLogger(log.Handler(), slog.LevelWarn),
+		ConnContext:       api.FramingContext, // with FramingGuard below: refuse two framings
 	}
 	scheme := "http"
 	if tlsCfg != nil {
@@ -178,7 +179,7 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 			errc <- hs.ServeTLS(ln, "", "")
 			return
 		}
-		errc <- hs.Serve(ln)
+		errc <- hs.Serve(api.FramingGuard(ln))
 	}()
 
 	addr := ln.Addr().String()
@@ -232,15 +233,6 @@ func oneLine(err error) string {
 	return strings.Join(parts, " ")
 }
 
-// redactURL hides a password in a database URL.
-func redactURL(u string) string {
-	if i := strings.Index(u, "://"); i >= 0 {
-		rest := u[i+3:]
-		if at := strings.LastIndex(rest, "@"); at >= 0 {
-			if colon := strings.Index(rest[:at], ":"); colon >= 0 {
-				return u[:i+3] + rest[:colon] + ":xxxxx" + rest[at:]
-			}
-		}
-	}
-	return u
-}
+// redactURL names where a database connection string points, without any
+// password (store.DescribeURL).
+func redactURL(u string) string { return store.DescribeURL(u) }

@@ -1,0 +1,294 @@
+package calib
+
+import "math"
+
+// The non-linear calibration models (FitCurve). Concentrations x are ≥ 0;
+// coefficients are reported in the order given.
+//
+// The logistic models are logistic in log concentration:
+//
+//	5PL: y = d + (a − d)/(1 + (x/c)^b)^g,  coefficients [a, b, c, d, g]
+//	4PL: y = d + (a − d)/(1 + (x/c)^b),    coefficients [a, b, c, d]
+//
+// with a the response at zero concentration, d the response at infinite
+// concentration, c > 0 the inflection (EC50 of the 4PL) in concentration
+// units, b > 0 the slope factor and g > 0 the asymmetry (g = 1 gives the
+// 4PL; Gottschalk & Dunn 2005). Sign convention: b is positive for every
+// curve; whether the curve rises or falls is carried by a < d (rising) or
+// a > d (falling). Some libraries instead let b's sign carry the direction
+// (drc's b is negative for a rising curve); convert before comparing.
+const (
+	FourPL Model = "4pl" // y = d + (a − d)/(1 + (x/c)^b), coefficients [a, b, c, d]
+	FivePL Model = "5pl" // y = d + (a − d)/(1 + (x/c)^b)^g, coefficients [a, b, c, d, g]
+	// Power is y = a·x^b, coefficients [a, b], b > 0.
+	Power Model = "power"
+	// ExpSaturation is y = a·(1 − e^(−b·x)), coefficients [a, b], b > 0: a
+	// detector that saturates towards a, with zero response at zero.
+	ExpSaturation Model = "exp_saturation"
+	// ExpSaturationOffset is y = y0 + a·(1 − e^(−b·x)), coefficients
+	// [a, b, y0]: the same with a blank response y0 (most detectors read
+	// something at zero concentration).
+	ExpSaturationOffset Model = "exp_saturation_offset"
+)
+
+// Prediction flags of the non-linear models.
+const (
+	// FlagAboveAsymptote: the response is at or above the highest response
+	// the curve approaches (the upper asymptote of a logistic, the plateau
+	// of a saturating exponential): no concentration gives it.
+	FlagAboveAsymptote = "above_asymptote"
+	// FlagBelowAsymptote: the response is at or below the lowest response
+	// the curve approaches: no concentration gives it.
+	FlagBelowAsymptote = "below_asymptote"
+)
+
+// calibCurve is a Curve that can be inverted: a calibration model.
+type calibCurve interface {
+	Curve
+	// slope returns ∂f/∂x at x.
+	slope(x float64, beta []float64) float64
+	// invert returns x with f(x; β) = y; when there is none, ok is false
+	// and flag says why.
+	invert(y float64, beta []float64) (x float64, flag string, ok bool)
+}
+
+// curveOf returns the curve of a non-linear model, or nil.
+func curveOf(m Model) calibCurve {
+	switch m {
+	case FourPL:
+		return logistic{}
+	case FivePL:
+		return logistic{five: true}
+	case Power:
+		return powerCurve{}
+	case ExpSaturation:
+		return expCurve{}
+	case ExpSaturationOffset:
+		return expCurve{offset: true}
+	}
+	return nil
+}
+
+// logistic is the 4PL (five false) or the 5PL.
+type logistic struct{ five bool }
+
+func (l logistic) NumParams() int {
+	if l.five {
+		return 5
+	}
+	return 4
+}
+
+// softplus returns ln(1 + eᵗ) without overflow.
+func softplus(t float64) float64 {
+	if t > 0 {
+		return t + math.Log1p(math.Exp(-t))
+	}
+	return math.Log1p(math.Exp(t))
+}
+
+// parts returns, for the logistic at x > 0, t = b·ln(x/c), h = (1 + eᵗ)^(−g)
+// and L = eᵗ/(1 + eᵗ), computed without overflow.
+func (l logistic) parts(x float64, beta []float64) (t, sp, h, lg, g float64) {
+	g = 1
+	if l.five {
+		g = beta[4]
+	}
+	t = beta[1] * (math.Log(x) - math.Log(beta[2]))
+	sp = softplus(t)
+	h = math.Exp(-g * sp)
+	lg = 1 / (1 + math.Exp(-t))
+	return t, sp, h, lg, g
+}
+
+// Eval: with t, h and L as in parts,
+//
+//	∂f/∂a = h, ∂f/∂d = 1 − h, ∂f/∂b = −(a − d)·g·h·L·ln(x/c),
+//	∂f/∂c = (a − d)·g·h·L·b/c, ∂f/∂g = −(a − d)·h·ln(1 + eᵗ).
+//
+// At x = 0 (b > 0) f = a and only ∂f/∂a = 1 is non-zero (the limits).
+func (l logistic) Eval(x float64, beta, grad []float64) float64 {
+	a, b, c, d := beta[0], beta[1], beta[2], beta[3]
+	if x == 0 && b > 0 && c > 0 {
+		if grad != nil {
+			clear(grad[:l.NumParams()])
+			grad[0] = 1
+		}
+		return a
+	}
+	if !(x > 0 && c > 0) {
+		return math.NaN()
+	}
+	_, sp, h, lg, g := l.parts(x, beta)
+	if grad != nil {
+		k := (a - d) * g * h * lg
+		grad[0] = h
+		grad[1] = -k * (math.Log(x) - math.Log(c))
+		grad[2] = k * b / c
+		grad[3] = -math.Expm1(-g * sp)
+		if l.five {
+			grad[4] = -(a - d) * h * sp
+		}
+	}
+	return d + (a-d)*h
+}
+
+// slope is ∂f/∂x = −(a − d)·g·h·L·b/x (0 at x = 0 unless 0 < b < 1, where
+// it is infinite; reported as +Inf or −Inf).
+func (l logistic) slope(x float64, beta []float64) float64 {
+	a, b, d := beta[0], beta[1], beta[3]
+	if !(x > 0) {
+		if b < 1 {
+			return math.Copysign(math.Inf(1), d-a)
+		}
+		if b == 1 {
+			g := 1.0
+			if l.five {
+				g = beta[4]
+			}
+			return (d - a) * g / beta[2]
+		}
+		return 0
+	}
+	_, _, h, lg, g := l.parts(x, beta)
+	return -(a - d) * g * h * lg * b / x
+}
+
+// invert: with u = (y − d)/(a − d) in (0, 1),
+// x = c·(u^(−1/g) − 1)^(1/b), computed as c·exp(ln(expm1(−ln(u)/g))/b).
+// A response outside the open interval between a and d has no inverse.
+func (l logistic) invert(y float64, beta []float64) (float64, string, bool) {
+	a, b, c, d := beta[0], beta[1], beta[2], beta[3]
+	g := 1.0
+	if l.five {
+		g = beta[4]
+	}
+	lo, hi := min(a, d), max(a, d)
+	switch {
+	case !(y > lo):
+		return 0, FlagBelowAsymptote, false
+	case !(y < hi):
+		return 0, FlagAboveAsymptote, false
+	}
+	u := (y - d) / (a - d)
+	e := math.Expm1(-math.Log(u) / g)
+	x := c * math.Exp(math.Log(e)/b)
+	if !(x > 0) || math.IsInf(x, 0) {
+		// The response is so close to an asymptote that x under- or
+		// overflows.
+		if (y-lo < hi-y) == (a < d) {
+			return 0, FlagBelowAsymptote, false
+		}
+		return 0, FlagAboveAsymptote, false
+	}
+	return x, "", true
+}
+
+// powerCurve is y = a·x^b.
+type powerCurve struct{}
+
+func (powerCurve) NumParams() int { return 2 }
+
+// Eval: ∂f/∂a = x^b, ∂f/∂b = a·x^b·ln x; at x = 0 (b > 0) both are 0.
+func (powerCurve) Eval(x float64, beta, grad []float64) float64 {
+	a, b := beta[0], beta[1]
+	if x == 0 && b > 0 {
+		if grad != nil {
+			grad[0], grad[1] = 0, 0
+		}
+		return 0
+	}
+	if !(x > 0) {
+		return math.NaN()
+	}
+	lx := math.Log(x)
+	v := math.Exp(b * lx)
+	if grad != nil {
+		grad[0], grad[1] = v, a*v*lx
+	}
+	return a * v
+}
+
+func (powerCurve) slope(x float64, beta []float64) float64 {
+	a, b := beta[0], beta[1]
+	if !(x > 0) {
+		switch {
+		case b < 1:
+			return math.Copysign(math.Inf(1), a)
+		case b == 1:
+			return a
+		}
+		return 0
+	}
+	return a * b * math.Exp((b-1)*math.Log(x))
+}
+
+// invert: x = (y/a)^(1/b) for y/a > 0; otherwise no root on x > 0.
+func (powerCurve) invert(y float64, beta []float64) (float64, string, bool) {
+	a, b := beta[0], beta[1]
+	r := y / a
+	if !(r > 0) || math.IsInf(r, 0) {
+		return 0, FlagNoRoot, false
+	}
+	x := math.Exp(math.Log(r) / b)
+	if !(x > 0) || math.IsInf(x, 0) {
+		return 0, FlagNoRoot, false
+	}
+	return x, "", true
+}
+
+// expCurve is y = [y0 +] a·(1 − e^(−b·x)).
+type expCurve struct{ offset bool }
+
+func (e expCurve) NumParams() int {
+	if e.offset {
+		return 3
+	}
+	return 2
+}
+
+// Eval: ∂f/∂a = 1 − e^(−bx), ∂f/∂b = a·x·e^(−bx), ∂f/∂y0 = 1.
+func (e expCurve) Eval(x float64, beta, grad []float64) float64 {
+	a, b := beta[0], beta[1]
+	var y0 float64
+	if e.offset {
+		y0 = beta[2]
+	}
+	ex := math.Exp(-b * x)
+	om := -math.Expm1(-b * x)
+	if grad != nil {
+		grad[0], grad[1] = om, a*x*ex
+		if e.offset {
+			grad[2] = 1
+		}
+	}
+	return y0 + a*om
+}
+
+func (e expCurve) slope(x float64, beta []float64) float64 {
+	return beta[0] * beta[1] * math.Exp(-beta[1]*x)
+}
+
+// invert: with u = (y − y0)/a, x = −ln(1 − u)/b for u < 1; u ≥ 1 is at or
+// beyond the plateau y0 + a. A response on the far side of the blank
+// (u < 0) gives a negative x, which is returned (and flagged negative by
+// the caller), as for the straight line.
+func (e expCurve) invert(y float64, beta []float64) (float64, string, bool) {
+	a, b := beta[0], beta[1]
+	var y0 float64
+	if e.offset {
+		y0 = beta[2]
+	}
+	u := (y - y0) / a
+	if !(u < 1) {
+		if a > 0 {
+			return 0, FlagAboveAsymptote, false
+		}
+		return 0, FlagBelowAsymptote, false
+	}
+	x := -math.Log1p(-u) / b
+	if math.IsInf(x, 0) || math.IsNaN(x) {
+		return 0, FlagNoRoot, false
+	}
+	return x, "", true
+}

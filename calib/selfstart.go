@@ -1,0 +1,207 @@
+package calib
+
+import (
+	"math"
+	"slices"
+)
+
+// selfStart returns starting values computed from the data, honouring the
+// fixed coefficients of opt (a fixed value is used in place of its
+// estimate), clipped into [lower, upper]:
+//
+//   - 4PL: a and d from the responses at the lowest and highest
+//     concentration, moved 5 % of the response spread beyond the extreme
+//     responses; then b and c from the straight line ln(1/u − 1) =
+//     b·ln x − b·ln c, u = (y − d)/(a − d) (the logit linearisation, over
+//     x > 0). Should the line fail (b ≤ 0), b = 1 and c the geometric mean
+//     of the positive concentrations.
+//   - 5PL: the fitted 4PL (same data, weights and fixed a, b, c, d), g = 1.
+//   - power: the straight line ln|y| = ln|a| + b·ln x over readings with
+//     x > 0 and y of the majority sign.
+//   - exponential: y0 the mean response at the lowest concentration (offset
+//     model), a 10 % beyond the response at the highest concentration, b
+//     from −ln(1 − u) = b·x through the origin, u = (y − y0)/a.
+func selfStart(m Model, x, y, w []float64, opt CurveOptions, lower, upper []float64) ([]float64, error) {
+	fixed := func(j int) (float64, bool) {
+		if opt.Fixed != nil && !math.IsNaN(opt.Fixed[j]) {
+			return opt.Fixed[j], true
+		}
+		return 0, false
+	}
+	ends := levelEnds(x, y)
+	var s []float64
+	switch m {
+	case FourPL:
+		s = startLogistic(x, y, ends, fixed)
+	case FivePL:
+		o := opt
+		o.Model, o.Start, o.MaxIter = FourPL, nil, 0
+		if opt.Start != nil {
+			o.Start = opt.Start[:4]
+		}
+		if opt.Fixed != nil {
+			o.Fixed = opt.Fixed[:4]
+		}
+		f, err := FitCurve(x, y, w, o)
+		if err != nil {
+			return nil, err
+		}
+		s = append(slices.Clone(f.Coefficients), 1)
+	case Power:
+		s = startPower(x, y)
+	case ExpSaturation, ExpSaturationOffset:
+		s = startExp(x, y, ends, m == ExpSaturationOffset, fixed)
+	}
+	for j := range s {
+		if v, ok := fixed(j); ok {
+			s[j] = v
+		}
+		if !Finite(s[j]) {
+			s[j] = 1
+		}
+		s[j] = min(max(s[j], lower[j]), upper[j])
+	}
+	return s, nil
+}
+
+// levelEnds returns the mean response at the lowest and at the highest
+// concentration, and the smallest and largest response.
+func levelEnds(x, y []float64) (e [4]float64) {
+	lo, hi := slices.Min(x), slices.Max(x)
+	var nl, nh float64
+	for i := range x {
+		if x[i] == lo {
+			e[0] += y[i]
+			nl++
+		}
+		if x[i] == hi {
+			e[1] += y[i]
+			nh++
+		}
+	}
+	e[0] /= nl
+	e[1] /= nh
+	e[2], e[3] = slices.Min(y), slices.Max(y)
+	return e
+}
+
+// lineFit returns the unweighted least-squares line v = b0 + b1·u and
+// whether it is defined (two distinct u at least).
+func lineFit(u, v []float64) (b0, b1 float64, ok bool) {
+	n := float64(len(u))
+	if n < 2 {
+		return 0, 0, false
+	}
+	var mu, mv float64
+	for i := range u {
+		mu += u[i]
+		mv += v[i]
+	}
+	mu /= n
+	mv /= n
+	var suu, suv float64
+	for i := range u {
+		suu += (u[i] - mu) * (u[i] - mu)
+		suv += (u[i] - mu) * (v[i] - mv)
+	}
+	if !(suu > 0) {
+		return 0, 0, false
+	}
+	b1 = suv / suu
+	return mv - b1*mu, b1, Finite(b1, mv-b1*mu)
+}
+
+func startLogistic(x, y []float64, e [4]float64, fixed func(int) (float64, bool)) []float64 {
+	spread := e[3] - e[2]
+	a, d := e[3]+0.05*spread, e[2]-0.05*spread // falling curve
+	if e[1] > e[0] {
+		a, d = e[2]-0.05*spread, e[3]+0.05*spread
+	}
+	if v, ok := fixed(0); ok {
+		a = v
+	}
+	if v, ok := fixed(3); ok {
+		d = v
+	}
+	var lx, z, all []float64
+	for i := range x {
+		if x[i] > 0 {
+			all = append(all, math.Log(x[i]))
+			if a == d {
+				continue
+			}
+			u := min(max((y[i]-d)/(a-d), 0.01), 0.99)
+			lx = append(lx, math.Log(x[i]))
+			z = append(z, math.Log(1/u-1))
+		}
+	}
+	b0, b1, ok := lineFit(lx, z)
+	b, c := b1, math.Exp(-b0/b1)
+	if !ok || !(b1 > 0) || !Finite(c) {
+		var m float64
+		for _, v := range all {
+			m += v
+		}
+		b, c = 1, math.Exp(m/float64(len(all)))
+	}
+	return []float64{a, b, c, d}
+}
+
+func startPower(x, y []float64) []float64 {
+	sign := 0.0
+	for i := range y {
+		if x[i] > 0 {
+			sign += math.Copysign(1, y[i])
+		}
+	}
+	sign = math.Copysign(1, sign)
+	var lx, ly []float64
+	for i := range x {
+		if x[i] > 0 && y[i]*sign > 0 {
+			lx = append(lx, math.Log(x[i]))
+			ly = append(ly, math.Log(y[i]*sign))
+		}
+	}
+	b0, b1, ok := lineFit(lx, ly)
+	if !ok || !(b1 > 0) {
+		// y = a·x through the origin.
+		var sxy, sxx float64
+		for i := range x {
+			sxy += x[i] * y[i]
+			sxx += x[i] * x[i]
+		}
+		return []float64{sxy / sxx, 1}
+	}
+	return []float64{sign * math.Exp(b0), b1}
+}
+
+func startExp(x, y []float64, e [4]float64, offset bool, fixed func(int) (float64, bool)) []float64 {
+	var y0 float64
+	if offset {
+		y0 = e[0]
+		if v, ok := fixed(2); ok {
+			y0 = v
+		}
+	}
+	a := 1.1 * (e[1] - y0)
+	if v, ok := fixed(0); ok {
+		a = v
+	}
+	var sxz, sxx float64
+	for i := range x {
+		if a == 0 {
+			break
+		}
+		u := min(max((y[i]-y0)/a, 0), 0.99)
+		sxz += x[i] * -math.Log1p(-u)
+		sxx += x[i] * x[i]
+	}
+	b := sxz / sxx
+	if !(b > 0) || !Finite(b) {
+		b = 1 / slices.Max(x)
+	}
+	if offset {
+		return []float64{a, b, y0}
+	}
+	return []float64{a, b}
+}
