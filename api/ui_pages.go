@@ -129,13 +129,16 @@ func (s *Server) uiFail(c echo.Context, err error) error {
 	return s.uiError(c, status, msg)
 }
 
-// uiStatic serves the style sheet.
+// uiStylePath is where the style sheet is served (cached: see
+// securityHeaders).
+const uiStylePath = "/ui/style.css"
+
+// uiStyle serves the style sheet.
 func (s *Server) uiStyle(c echo.Context) error {
 	b, err := uiFiles.ReadFile("ui/style.css")
 	if err != nil {
 		return err
 	}
-	c.Response().Header().Set("Cache-Control", "public, max-age=3600")
 	return c.Blob(http.StatusOK, "text/css; charset=utf-8", b)
 }
 
@@ -146,7 +149,7 @@ func (s *Server) registerUI(e *echo.Echo) {
 	g := e.Group("/ui", s.uiSessionMiddleware)
 	g.GET("", func(c echo.Context) error { return c.Redirect(http.StatusSeeOther, "/ui/curves") })
 	g.GET("/", func(c echo.Context) error { return c.Redirect(http.StatusSeeOther, "/ui/curves") })
-	g.GET("/style.css", s.uiStyle)
+	g.GET(strings.TrimPrefix(uiStylePath, "/ui"), s.uiStyle)
 	g.GET("/sign-in", s.signInPage)
 	g.POST("/sign-in", s.signIn)
 	g.POST("/sign-out", s.signOut, s.requireSession(), s.requireCSRF)
@@ -403,7 +406,7 @@ func (s *Server) uiReview(c echo.Context) error {
 type trendView struct {
 	Query    url.Values
 	Subjects []lab.TrendSubject
-	Trend    *trendResult
+	Trend    *lab.Trend
 	Params   []string
 	Alt      string
 	PlotURL  template.URL
@@ -412,20 +415,20 @@ type trendView struct {
 }
 
 type trendRow struct {
-	trendPoint
+	lab.TrendPoint
 	Z    float64
 	HasZ bool
 }
 
 // trendQueryFrom reads the trend page's query parameters.
-func trendQueryFrom(q url.Values) (trendQuery, url.Values, string) {
+func trendQueryFrom(q url.Values) (lab.TrendQuery, url.Values, string) {
 	keep := url.Values{}
 	for _, k := range []string{"instrument", "analyte", "parameter", "from", "to", "baseline"} {
 		if x := strings.TrimSpace(q.Get(k)); x != "" {
 			keep.Set(k, x)
 		}
 	}
-	tq := trendQuery{Instrument: keep.Get("instrument"), Analyte: keep.Get("analyte"), Parameter: keep.Get("parameter")}
+	tq := lab.TrendQuery{Instrument: keep.Get("instrument"), Analyte: keep.Get("analyte"), Parameter: keep.Get("parameter")}
 	if tq.Parameter == "" {
 		tq.Parameter = lab.ParamSlope
 	}
@@ -466,14 +469,14 @@ func (s *Server) uiTrendPage(c echo.Context) error {
 	if problem != "" {
 		status = http.StatusBadRequest
 	} else if tq.Instrument != "" && tq.Analyte != "" {
-		t, err := s.computeTrend(ctx, tq)
+		t, err := s.lab.Trend(ctx, tq)
 		if err != nil {
 			return s.uiFail(c, err)
 		}
 		v.Trend, v.Alt = t, trendAltText(t)
 		v.PlotURL = template.URL("/ui/trends/plot.svg?" + keep.Encode())
 		for _, p := range t.Points {
-			r := trendRow{trendPoint: p}
+			r := trendRow{TrendPoint: p}
 			if t.HasBaseline && p.HasValue {
 				r.Z, r.HasZ = t.Baseline.Z(p.Value), true
 				if math.IsNaN(r.Z) || math.IsInf(r.Z, 0) {
@@ -495,7 +498,7 @@ func (s *Server) uiTrendPlot(c echo.Context) error {
 	if problem != "" || tq.Instrument == "" || tq.Analyte == "" {
 		return s.uiError(c, http.StatusBadRequest, "Name an instrument and an analyte. "+problem)
 	}
-	t, err := s.computeTrend(c.Request().Context(), tq)
+	t, err := s.lab.Trend(c.Request().Context(), tq)
 	if err != nil {
 		return s.uiFail(c, err)
 	}

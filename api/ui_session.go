@@ -92,15 +92,9 @@ func sessionOf(c echo.Context) *uiSession {
 // uiSessionMiddleware reads the session cookie and, when it names a live
 // session, puts the session (with its token's current scopes) on the
 // request. It never refuses: pages decide what a visitor without a session
-// sees. Every page also gets headers that keep it out of caches and frames
-// and allow no script at all.
+// sees. (Its security headers are set by securityHeadersMiddleware.)
 func (s *Server) uiSessionMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 	return func(c echo.Context) error {
-		h := c.Response().Header()
-		h.Set("Content-Security-Policy", "default-src 'none'; style-src 'self'; img-src 'self'; form-action 'self'; frame-ancestors 'none'; base-uri 'none'")
-		h.Set("X-Content-Type-Options", "nosniff")
-		h.Set("Referrer-Policy", "same-origin")
-		h.Set("Cache-Control", "no-store")
 		if ck, err := c.Cookie(uiSessionCookie); err == nil && ck.Value != "" && len(ck.Value) <= 256 {
 			sess, err := s.lab.LookupSession(c.Request().Context(), ck.Value)
 			switch {
