@@ -4,7 +4,6 @@ import (
 	"bytes"
 	"context"
 	"fmt"
-	"strconv"
 	"time"
 
 	"curvekeeper/api/curveplot"
@@ -117,36 +116,3 @@ func (s *Server) GetTrendPlotSVG(ctx context.Context, req oapi.GetTrendPlotSVGRe
 	}
 	return oapi.GetTrendPlotSVG200ImageSvgXMLResponse{Body: bytes.NewReader(b), ContentLength: int64(len(b))}, nil
 }
-
-// trendAltText describes the control chart of t in words.
-func trendAltText(t *lab.Trend) string {
-	evaluated := 0
-	for _, p := range t.Points {
-		if p.Evaluated {
-			evaluated++
-		}
-	}
-	txt := fmt.Sprintf("Control chart of the %s of %s on %s: %d curve value(s) in time order.", t.Query.Parameter, t.Query.Analyte, t.Query.Instrument, evaluated)
-	if !t.HasBaseline {
-		return txt + " No baseline, so no control limits are drawn. " + curveplot.Footer
-	}
-	l := t.Baseline.Limits()
-	txt += fmt.Sprintf(" Centre line %s (mean of %d approved curves), warning limits %s to %s (±2 SD), action limits %s to %s (±3 SD).",
-		g4(l.Centre), t.Baseline.N, g4(l.WarningLow), g4(l.WarningHigh), g4(l.ActionLow), g4(l.ActionHigh))
-	reject, warn := 0, 0
-	for _, v := range t.Violations {
-		if v.Reject {
-			reject++
-		} else {
-			warn++
-		}
-	}
-	if reject+warn == 0 {
-		txt += " No control rule is violated."
-	} else {
-		txt += fmt.Sprintf(" %d reject-rule violation(s) and %d warning(s), marked as squares and listed below the chart.", reject, warn)
-	}
-	return txt + " " + curveplot.Footer
-}
-
-func g4(v float64) string { return strconv.FormatFloat(v, 'g', 4, 64) }

@@ -10,6 +10,7 @@ import (
 
 	"github.com/labstack/echo/v4"
 
+	"curvekeeper/api/qaui"
 	"curvekeeper/lab"
 )
 
@@ -171,8 +172,8 @@ func (s *Server) errorHandler(err error, c echo.Context) {
 	if c.Response().Committed {
 		return
 	}
-	if isUIPath(c.Request().URL.Path) {
-		if uerr := s.uiFail(c, err); uerr != nil {
+	if qaui.IsPath(c.Request().URL.Path) {
+		if uerr := s.ui.Fail(c, err); uerr != nil {
 			s.log.Error("render error page", "request_id", requestID(c), "error", uerr)
 		}
 		return

@@ -10,6 +10,8 @@ import (
 
 	"github.com/labstack/echo/v4"
 	"golang.org/x/time/rate"
+
+	"curvekeeper/api/qaui"
 )
 
 // securityHeadersMiddleware sets the headers every response carries,
@@ -58,9 +60,9 @@ func securityHeaders(path string) [][2]string {
 	switch {
 	case strings.HasPrefix(path, "/v1/"):
 		return v1Headers
-	case path == uiStylePath:
+	case path == qaui.StylePath:
 		return uiStyleHeaders
-	case isUIPath(path):
+	case qaui.IsPath(path):
 		return uiPageHeaders
 	}
 	return restHeaders

@@ -2,6 +2,7 @@
 package api
 
 import (
+	"context"
 	"fmt"
 	"log/slog"
 	"net/http"
@@ -10,7 +11,9 @@ import (
 	"github.com/labstack/echo/v4"
 	"github.com/prometheus/client_golang/prometheus"
 
+	"curvekeeper/api/curveplot"
 	"curvekeeper/api/oapi"
+	"curvekeeper/api/qaui"
 	"curvekeeper/lab"
 )
 
@@ -44,6 +47,7 @@ func DefaultConfig() Config {
 type Server struct {
 	cfg     Config
 	lab     *lab.Service
+	ui      *qaui.Pages
 	log     *slog.Logger
 	echo    *echo.Echo
 	metrics *metrics
@@ -102,7 +106,15 @@ func New(cfg Config, svc *lab.Service, log *slog.Logger) (*Server, error) {
 	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware, s.framingMiddleware,
 		s.timeoutMiddleware, s.bodyLimitMiddleware, s.authMiddleware, s.rateLimitMiddleware, validator)
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
-	s.registerUI(e)
+	s.ui = qaui.New(qaui.Deps{Lab: svc, Log: log, Curve: s.freshCurve, Reviewed: s.curves.drop,
+		Plot:       func(ctx context.Context, id string) ([]byte, error) { return s.plot(ctx, id, curveplot.FormatSVG) },
+		TrendChart: trendChart, RequestID: requestID, Status: StatusOf,
+		WithPrincipal: func(ctx context.Context, p lab.Principal) context.Context {
+			return context.WithValue(ctx, principalKey{}, p)
+		},
+		ValidToken:      func(tok string) bool { _, ok := bearer("Bearer " + tok); return ok },
+		AuthFailureWait: s.authFailureWait, AuthFailed: s.authFailed})
+	s.ui.Register(e)
 	return s, nil
 }
 

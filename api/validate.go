@@ -14,6 +14,7 @@ import (
 	"github.com/labstack/echo/v4"
 	oapimw "github.com/oapi-codegen/echo-middleware"
 
+	"curvekeeper/api/qaui"
 	"curvekeeper/lab"
 )
 
@@ -33,7 +34,7 @@ func requestValidator(doc *openapi3.T) (echo.MiddlewareFunc, error) {
 	}
 	return func(next echo.HandlerFunc) echo.HandlerFunc {
 		return func(c echo.Context) error {
-			if isUIPath(c.Request().URL.Path) {
+			if qaui.IsPath(c.Request().URL.Path) {
 				return next(c) // the QA pages check their own form input
 			}
 			if c.Request().Method == http.MethodPost {
@@ -220,7 +221,3 @@ func firstLine(s string) string {
 	}
 	return s
 }
-
-// isUIPath reports whether path belongs to the QA pages under /ui/, which
-// are not part of the API contract.
-func isUIPath(path string) bool { return path == "/ui" || strings.HasPrefix(path, "/ui/") }

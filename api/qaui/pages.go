@@ -1,4 +1,4 @@
-package api
+package qaui
 
 import (
 	"bytes"
@@ -84,35 +84,35 @@ type pageData struct {
 }
 
 // render writes page name with data, always with the cautions.
-func (s *Server) render(c echo.Context, status int, name string, d pageData) error {
+func (s *Pages) render(c echo.Context, status int, name string, d pageData) error {
 	t, ok := uiPages[name]
 	if !ok {
-		return fmt.Errorf("api: no page template %q", name)
+		return fmt.Errorf("qaui: no page template %q", name)
 	}
 	d.Session = sessionOf(c)
 	d.Cautions = calib.Cautions()
 	d.Status = status
 	var buf bytes.Buffer
 	if err := t.Execute(&buf, d); err != nil {
-		return fmt.Errorf("api: render %s: %w", name, err)
+		return fmt.Errorf("qaui: render %s: %w", name, err)
 	}
 	return c.HTMLBlob(status, buf.Bytes())
 }
 
 // uiError renders an error page with the status and a message for people.
-func (s *Server) uiError(c echo.Context, status int, msg string) error {
+func (s *Pages) uiError(c echo.Context, status int, msg string) error {
 	return s.render(c, status, "error", pageData{Title: http.StatusText(status), Message: msg})
 }
 
-// uiFail renders errors of the QA pages as pages, not problems: a
+// Fail renders errors of the QA pages as pages, not problems: a
 // store error by its kind, anything else as an internal error whose cause
 // goes to the log only.
-func (s *Server) uiFail(c echo.Context, err error) error {
-	status := StatusOf(err)
+func (s *Pages) Fail(c echo.Context, err error) error {
+	status := s.Status(err)
 	if status == 0 {
 		status = http.StatusInternalServerError
 	}
-	msg := "Something went wrong on our side; the error is logged with request id " + requestID(c) + "."
+	msg := "Something went wrong on our side; the error is logged with request id " + s.RequestID(c) + "."
 	var se *lab.Error
 	switch {
 	case status == http.StatusServiceUnavailable:
@@ -124,17 +124,17 @@ func (s *Server) uiFail(c echo.Context, err error) error {
 	case status < 500:
 		msg = "The request was refused: " + http.StatusText(status) + "."
 	case status >= 500:
-		s.log.Error("ui request failed", "request_id", requestID(c), "error", err.Error())
+		s.Log.Error("ui request failed", "request_id", s.RequestID(c), "error", err.Error())
 	}
 	return s.uiError(c, status, msg)
 }
 
-// uiStylePath is where the style sheet is served (cached: see
+// StylePath is where the style sheet is served (cached: see
 // securityHeaders).
-const uiStylePath = "/ui/style.css"
+const StylePath = "/ui/style.css"
 
 // uiStyle serves the style sheet.
-func (s *Server) uiStyle(c echo.Context) error {
+func (s *Pages) uiStyle(c echo.Context) error {
 	b, err := uiFiles.ReadFile("ui/style.css")
 	if err != nil {
 		return err
@@ -142,14 +142,14 @@ func (s *Server) uiStyle(c echo.Context) error {
 	return c.Blob(http.StatusOK, "text/css; charset=utf-8", b)
 }
 
-// registerUI adds the QA pages under /ui/.
-func (s *Server) registerUI(e *echo.Echo) {
+// Register adds the QA pages under /ui/.
+func (s *Pages) Register(e *echo.Echo) {
 	read := s.requireSession(lab.ScopeResultsRead, lab.ScopeCurvesReview, lab.ScopeAdmin)
 	review := s.requireSession(lab.ScopeCurvesReview, lab.ScopeAdmin)
 	g := e.Group("/ui", s.uiSessionMiddleware)
 	g.GET("", func(c echo.Context) error { return c.Redirect(http.StatusSeeOther, "/ui/curves") })
 	g.GET("/", func(c echo.Context) error { return c.Redirect(http.StatusSeeOther, "/ui/curves") })
-	g.GET(strings.TrimPrefix(uiStylePath, "/ui"), s.uiStyle)
+	g.GET(strings.TrimPrefix(StylePath, "/ui"), s.uiStyle)
 	g.GET("/sign-in", s.signInPage)
 	g.POST("/sign-in", s.signIn)
 	g.POST("/sign-out", s.signOut, s.requireSession(), s.requireCSRF)
@@ -187,7 +187,7 @@ func parseDay(v string, end bool) (time.Time, error) {
 	return t, nil
 }
 
-func (s *Server) uiCurveList(c echo.Context) error {
+func (s *Pages) uiCurveList(c echo.Context) error {
 	q := c.QueryParams()
 	v := listView{Filter: url.Values{}, First: q.Get("cursor") == "",
 		Statuses: []string{lab.StatusPendingReview, lab.StatusApproved, lab.StatusRejected}}
@@ -214,14 +214,14 @@ func (s *Server) uiCurveList(c echo.Context) error {
 	}
 	status := http.StatusOK
 	if v.Problem == "" {
-		page, err := s.lab.ListCurves(c.Request().Context(), f)
+		page, err := s.Lab.ListCurves(c.Request().Context(), f)
 		switch {
 		case lab.KindOf(err) == lab.KindInvalid:
 			var se *lab.Error
 			errors.As(err, &se)
 			v.Problem = se.Message
 		case err != nil:
-			return s.uiFail(c, err)
+			return s.Fail(c, err)
 		default:
 			v.Curves, v.NextCursor = page.Curves, page.NextCursor
 		}
@@ -304,9 +304,9 @@ func checkRows(r *calib.Report) []checkRow {
 	return rows
 }
 
-func (s *Server) curveView(c echo.Context, id string) (*curveView, error) {
+func (s *Pages) curveView(c echo.Context, id string) (*curveView, error) {
 	ctx := c.Request().Context()
-	cv, err := s.freshCurve(ctx, id)
+	cv, err := s.Curve(ctx, id)
 	if err != nil {
 		return nil, err
 	}
@@ -320,7 +320,7 @@ func (s *Server) curveView(c echo.Context, id string) (*curveView, error) {
 	tq := url.Values{"instrument": {cv.Instrument}, "analyte": {cv.Analyte}, "parameter": {lab.ParamSlope}}
 	v.TrendLink = template.URL("/ui/trends?" + tq.Encode())
 	if sessionOf(c).CanReview() {
-		events, err := s.lab.ListAudit(ctx, id)
+		events, err := s.Lab.ListAudit(ctx, id)
 		if err != nil {
 			return nil, err
 		}
@@ -347,25 +347,25 @@ func equationText(r *calib.Report) string {
 	return "y = " + g(r.Coefficients[0]) + " + " + g(b) + "·x"
 }
 
-func (s *Server) uiCurvePage(c echo.Context) error {
+func (s *Pages) uiCurvePage(c echo.Context) error {
 	v, err := s.curveView(c, c.Param("id"))
 	if err != nil {
-		return s.uiFail(c, err)
+		return s.Fail(c, err)
 	}
 	v.Done = map[string]string{"approve": "approved", "reject": "rejected"}[c.QueryParam("reviewed")]
 	return s.render(c, http.StatusOK, "curve", pageData{Title: v.Curve.Instrument + " · " + v.Curve.Analyte, Nav: "curves", Data: v})
 }
 
-func (s *Server) uiCurvePlot(c echo.Context) error {
-	b, err := s.plot(c.Request().Context(), c.Param("id"), curveplot.FormatSVG)
+func (s *Pages) uiCurvePlot(c echo.Context) error {
+	b, err := s.Plot(c.Request().Context(), c.Param("id"))
 	if err != nil {
-		return s.uiFail(c, err)
+		return s.Fail(c, err)
 	}
 	return c.Blob(http.StatusOK, "image/svg+xml", b)
 }
 
 // uiReview approves or rejects a curve from its page; the reason is required.
-func (s *Server) uiReview(c echo.Context) error {
+func (s *Pages) uiReview(c echo.Context) error {
 	id := c.Param("id")
 	decision := c.FormValue("decision")
 	reason := strings.TrimSpace(c.FormValue("reason"))
@@ -379,20 +379,20 @@ func (s *Server) uiReview(c echo.Context) error {
 		problem = "The reason is longer than 2,000 characters."
 	}
 	if problem == "" {
-		_, err := s.lab.Review(c.Request().Context(), sessionOf(c).Principal, id, decision, reason)
-		s.curves.drop(id)
+		_, err := s.Lab.Review(c.Request().Context(), sessionOf(c).Principal, id, decision, reason)
+		s.Reviewed(id)
 		if err == nil {
 			return c.Redirect(http.StatusSeeOther, "/ui/curves/"+url.PathEscape(id)+"?reviewed="+decision)
 		}
 		var se *lab.Error
 		if !errors.As(err, &se) || se.Kind == lab.KindInternal || se.Kind == lab.KindUnavailable || se.Kind == lab.KindNotFound {
-			return s.uiFail(c, err)
+			return s.Fail(c, err)
 		}
 		problem = se.Message
 	}
 	v, err := s.curveView(c, id)
 	if err != nil {
-		return s.uiFail(c, err)
+		return s.Fail(c, err)
 	}
 	v.Problem, v.Reason = problem, reason
 	status := http.StatusUnprocessableEntity
@@ -456,22 +456,22 @@ func trendQueryFrom(q url.Values) (lab.TrendQuery, url.Values, string) {
 	return tq, keep, ""
 }
 
-func (s *Server) uiTrendPage(c echo.Context) error {
+func (s *Pages) uiTrendPage(c echo.Context) error {
 	ctx := c.Request().Context()
 	tq, keep, problem := trendQueryFrom(c.QueryParams())
 	v := trendView{Query: keep, Params: lab.TrendParameters, Problem: problem}
-	subjects, err := s.lab.TrendSubjects(ctx)
+	subjects, err := s.Lab.TrendSubjects(ctx)
 	if err != nil {
-		return s.uiFail(c, err)
+		return s.Fail(c, err)
 	}
 	v.Subjects = subjects
 	status := http.StatusOK
 	if problem != "" {
 		status = http.StatusBadRequest
 	} else if tq.Instrument != "" && tq.Analyte != "" {
-		t, err := s.lab.Trend(ctx, tq)
+		t, err := s.Lab.Trend(ctx, tq)
 		if err != nil {
-			return s.uiFail(c, err)
+			return s.Fail(c, err)
 		}
 		v.Trend, v.Alt = t, trendAltText(t)
 		v.PlotURL = template.URL("/ui/trends/plot.svg?" + keep.Encode())
@@ -493,18 +493,51 @@ func (s *Server) uiTrendPage(c echo.Context) error {
 	return s.render(c, status, "trend", pageData{Title: title, Nav: "trends", Data: v})
 }
 
-func (s *Server) uiTrendPlot(c echo.Context) error {
+func (s *Pages) uiTrendPlot(c echo.Context) error {
 	tq, _, problem := trendQueryFrom(c.QueryParams())
 	if problem != "" || tq.Instrument == "" || tq.Analyte == "" {
 		return s.uiError(c, http.StatusBadRequest, "Name an instrument and an analyte. "+problem)
 	}
-	t, err := s.lab.Trend(c.Request().Context(), tq)
+	t, err := s.Lab.Trend(c.Request().Context(), tq)
 	if err != nil {
-		return s.uiFail(c, err)
+		return s.Fail(c, err)
 	}
-	b, err := trendChart(t)
+	b, err := s.TrendChart(t)
 	if err != nil {
-		return s.uiFail(c, err)
+		return s.Fail(c, err)
 	}
 	return c.Blob(http.StatusOK, "image/svg+xml", b)
 }
+
+// trendAltText describes the control chart of t in words.
+func trendAltText(t *lab.Trend) string {
+	evaluated := 0
+	for _, p := range t.Points {
+		if p.Evaluated {
+			evaluated++
+		}
+	}
+	txt := fmt.Sprintf("Control chart of the %s of %s on %s: %d curve value(s) in time order.", t.Query.Parameter, t.Query.Analyte, t.Query.Instrument, evaluated)
+	if !t.HasBaseline {
+		return txt + " No baseline, so no control limits are drawn. " + curveplot.Footer
+	}
+	l := t.Baseline.Limits()
+	txt += fmt.Sprintf(" Centre line %s (mean of %d approved curves), warning limits %s to %s (±2 SD), action limits %s to %s (±3 SD).",
+		g4(l.Centre), t.Baseline.N, g4(l.WarningLow), g4(l.WarningHigh), g4(l.ActionLow), g4(l.ActionHigh))
+	reject, warn := 0, 0
+	for _, v := range t.Violations {
+		if v.Reject {
+			reject++
+		} else {
+			warn++
+		}
+	}
+	if reject+warn == 0 {
+		txt += " No control rule is violated."
+	} else {
+		txt += fmt.Sprintf(" %d reject-rule violation(s) and %d warning(s), marked as squares and listed below the chart.", reject, warn)
+	}
+	return txt + " " + curveplot.Footer
+}
+
+func g4(v float64) string { return strconv.FormatFloat(v, 'g', 4, 64) }

@@ -1,7 +1,6 @@
-package api
+package qaui
 
 import (
-	"context"
 	"crypto/hmac"
 	"crypto/rand"
 	"crypto/sha256"
@@ -93,17 +92,17 @@ func sessionOf(c echo.Context) *uiSession {
 // session, puts the session (with its token's current scopes) on the
 // request. It never refuses: pages decide what a visitor without a session
 // sees. (Its security headers are set by securityHeadersMiddleware.)
-func (s *Server) uiSessionMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
+func (s *Pages) uiSessionMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 	return func(c echo.Context) error {
 		if ck, err := c.Cookie(uiSessionCookie); err == nil && ck.Value != "" && len(ck.Value) <= 256 {
-			sess, err := s.lab.LookupSession(c.Request().Context(), ck.Value)
+			sess, err := s.Lab.LookupSession(c.Request().Context(), ck.Value)
 			switch {
 			case err == nil:
 				u := &uiSession{secret: ck.Value, CSRF: csrfFor(ck.Value),
 					Principal: sess.Token}
 				c.Set("ui_session", u)
 				req := c.Request()
-				c.SetRequest(req.WithContext(context.WithValue(req.Context(), principalKey{}, u.Principal)))
+				c.SetRequest(req.WithContext(s.WithPrincipal(req.Context(), u.Principal)))
 			case lab.KindOf(err) == lab.KindNotFound:
 				setCookie(c, uiSessionCookie, "", -1) // stale: forget it
 			default:
@@ -117,7 +116,7 @@ func (s *Server) uiSessionMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 // requireSession sends a visitor without a session to the sign-in page
 // (GET) or refuses the request with 401 (anything else), and refuses a
 // session without one of scopes with 403.
-func (s *Server) requireSession(scopes ...string) echo.MiddlewareFunc {
+func (s *Pages) requireSession(scopes ...string) echo.MiddlewareFunc {
 	return func(next echo.HandlerFunc) echo.HandlerFunc {
 		return func(c echo.Context) error {
 			u := sessionOf(c)
@@ -136,7 +135,7 @@ func (s *Server) requireSession(scopes ...string) echo.MiddlewareFunc {
 }
 
 // requireCSRF refuses a form whose synchronizer token is not the session's.
-func (s *Server) requireCSRF(next echo.HandlerFunc) echo.HandlerFunc {
+func (s *Pages) requireCSRF(next echo.HandlerFunc) echo.HandlerFunc {
 	return func(c echo.Context) error {
 		u := sessionOf(c)
 		if u == nil || !sameToken(c.FormValue(uiCSRFField), u.CSRF) {
@@ -155,14 +154,14 @@ func safeNext(next string) string {
 }
 
 // signInPage shows the sign-in form, with a fresh form token in a cookie.
-func (s *Server) signInPage(c echo.Context) error {
+func (s *Pages) signInPage(c echo.Context) error {
 	if sessionOf(c) != nil {
 		return c.Redirect(http.StatusSeeOther, safeNext(c.QueryParam("next")))
 	}
 	return s.renderSignIn(c, http.StatusOK, "")
 }
 
-func (s *Server) renderSignIn(c echo.Context, status int, problem string) error {
+func (s *Pages) renderSignIn(c echo.Context, status int, problem string) error {
 	tok, err := randomToken()
 	if err != nil {
 		return err
@@ -174,22 +173,22 @@ func (s *Server) renderSignIn(c echo.Context, status int, problem string) error 
 }
 
 // signIn exchanges an API token for a session cookie.
-func (s *Server) signIn(c echo.Context) error {
+func (s *Pages) signIn(c echo.Context) error {
 	ck, err := c.Cookie(uiSignInCookie)
 	if err != nil || !sameToken(c.FormValue(uiCSRFField), ck.Value) {
 		return s.uiError(c, http.StatusForbidden, "The sign-in form's security token is missing or expired. Open the sign-in page again.")
 	}
-	if secs := s.authFailureWait(c); secs > 0 {
+	if secs := s.AuthFailureWait(c); secs > 0 {
 		return s.uiError(c, http.StatusTooManyRequests, "Too many failed sign-ins from this address. Wait "+strconv.Itoa(secs)+" s and try again.")
 	}
 	token := strings.TrimSpace(c.FormValue("token"))
-	if _, ok := bearer("Bearer " + token); !ok {
+	if !s.ValidToken(token) {
 		return s.renderSignIn(c, http.StatusUnauthorized, "Enter an API token.")
 	}
-	secret, _, err := s.lab.SignIn(c.Request().Context(), token, uiSessionTTL)
+	secret, _, err := s.Lab.SignIn(c.Request().Context(), token, uiSessionTTL)
 	if err != nil {
 		if lab.KindOf(err) == lab.KindNotFound {
-			s.authFailed(c)
+			s.AuthFailed(c)
 			return s.renderSignIn(c, http.StatusUnauthorized, "That token is unknown or revoked.")
 		}
 		return err
@@ -200,8 +199,8 @@ func (s *Server) signIn(c echo.Context) error {
 }
 
 // signOut ends the session.
-func (s *Server) signOut(c echo.Context) error {
-	if err := s.lab.SignOut(c.Request().Context(), sessionOf(c).secret); err != nil {
+func (s *Pages) signOut(c echo.Context) error {
+	if err := s.Lab.SignOut(c.Request().Context(), sessionOf(c).secret); err != nil {
 		return err
 	}
 	setCookie(c, uiSessionCookie, "", -1)
