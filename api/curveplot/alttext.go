@@ -85,14 +85,9 @@ func AltText(r *calib.Report, analyte, unit string) string {
 
 // equation writes ŷ = f(x)ᵀβ with coefficients to 4 significant figures.
 func equation(c curve) string {
-	var terms []string
-	switch c.model {
-	case calib.LinearOrigin:
-		return "y = " + signed(c.coef[0]) + "·x"
-	case calib.Quadratic:
-		terms = []string{"", "·x", "·x²"}
-	default:
-		terms = []string{"", "·x"}
+	terms := calib.Terms(c.model)
+	if c.model == calib.LinearOrigin {
+		return "y = " + signed(c.coef[0]) + terms[0]
 	}
 	var b strings.Builder
 	b.WriteString("y = " + signed(c.coef[0]))

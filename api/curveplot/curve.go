@@ -152,7 +152,7 @@ func addModel(p *plot.Plot, r *calib.Report, c curve, lo, hi float64) error {
 	line := make(plotter.XYs, 0, curveSamples+1)
 	upper := make(plotter.XYs, 0, curveSamples+1)
 	lower := make(plotter.XYs, 0, curveSamples+1)
-	band := c.cov != nil
+	band := c.band
 	for i := 0; i <= curveSamples; i++ {
 		x := lo + (hi-lo)*float64(i)/curveSamples
 		y := c.at(x)
