@@ -22,6 +22,10 @@ var Scopes = []string{ScopeRunsWrite, ScopeResultsRead, ScopeCurvesReview, Scope
 // maxLength of each; tested against the spec).
 const MaxNameLen = 64
 
+// MaxIdempotencyKeyLen bounds a client's Idempotency-Key (the spec's
+// maxLength; tested against it with the fast path's constant).
+const MaxIdempotencyKeyLen = 128
+
 // Principal is the caller a request was authenticated as: the token it
 // carried (its secret is never kept) and the scopes it grants.
 type Principal struct {

@@ -97,8 +97,8 @@ func CheckRun(in *RunInput, curves []CurveInput) error {
 		return FieldError("/standards", "at least one standard is required")
 	}
 	if in.IdempotencyKey != "" {
-		if len(in.IdempotencyKey) > 255 {
-			return Errorf(KindInvalid, "Idempotency-Key must be at most 255 characters")
+		if len(in.IdempotencyKey) > MaxIdempotencyKeyLen {
+			return ParamError(KindInvalid, InHeader, "Idempotency-Key", "Idempotency-Key must be at most %d characters", MaxIdempotencyKeyLen)
 		}
 		if in.TokenID == "" {
 			return Errorf(KindInvalid, "an Idempotency-Key needs the token id it is scoped to")
