@@ -40,3 +40,29 @@ func TestValidTokensAreNotCountedAsFailures(t *testing.T) {
 		}
 	}
 }
+
+// TestMachineReadersGetMoreRate: a token whose only scope is results:read (a
+// LIMS reading back) gets ReaderRateFactor times the rate and burst; an
+// instrument's token keeps the base.
+func TestMachineReadersGetMoreRate(t *testing.T) {
+	t.Parallel()
+	e := newEnvConfig(t, api.Config{RateLimit: 0.001, RateBurst: 3})
+	_, lims := e.token(t, "lims", "results:read")
+	_, qa := e.token(t, "qa", "curves:review")
+	count := func(token string) int {
+		for i := range 100 {
+			if r := e.get(t, token, "/v1/curves"); r.status == http.StatusTooManyRequests {
+				return i
+			} else if r.status != http.StatusOK {
+				t.Fatalf("request %d: %s", i+1, r)
+			}
+		}
+		return 100
+	}
+	if got, want := count(lims), 3*api.ReaderRateFactor; got != want {
+		t.Errorf("results:read token: 429 after %d requests, want %d", got, want)
+	}
+	if got := count(qa); got != 3 {
+		t.Errorf("curves:review token: 429 after %d requests, want 3", got)
+	}
+}

@@ -77,6 +77,19 @@ const (
 	DefaultRateBurst = 200
 )
 
+// ReaderRateFactor multiplies the rate and the burst of a machine reader: a
+// token whose only scope is results:read (a LIMS reading results and curves
+// back). Such a client reads many records in a row after a batch (a LIMS
+// reading 350 runs back at once met 429s under the instruments' limit), and
+// reads are cheap next to ingest; instruments, reviewers and administrators
+// keep the base limit.
+const ReaderRateFactor = 5
+
+// isMachineReader reports whether scopes hold results:read and nothing else.
+func isMachineReader(scopes []string) bool {
+	return len(scopes) == 1 && scopes[0] == ScopeResultsRead
+}
+
 // tokenLimiter holds one token bucket per API token. It lives in the
 // memory of one process: with several replicas each applies its own limit,
 // so a client spread over n replicas may reach n times the rate.
@@ -97,6 +110,12 @@ func newTokenLimiter(perSecond float64, burst int) *tokenLimiter {
 // allow takes one request from the token's bucket. When the bucket is
 // empty it returns false and how long until a request would be admitted.
 func (l *tokenLimiter) allow(tokenID string, now time.Time) (bool, time.Duration) {
+	return l.allowScaled(tokenID, 1, now)
+}
+
+// allowScaled is allow for a key whose bucket, when it is created, gets
+// scale times the limiter's rate and burst.
+func (l *tokenLimiter) allowScaled(tokenID string, scale int, now time.Time) (bool, time.Duration) {
 	l.mu.Lock()
 	defer l.mu.Unlock()
 	b, ok := l.buckets[tokenID]
@@ -104,7 +123,7 @@ func (l *tokenLimiter) allow(tokenID string, now time.Time) (bool, time.Duration
 		if len(l.buckets) >= l.sweepAt {
 			l.sweep(now)
 		}
-		b = rate.NewLimiter(l.limit, l.burst)
+		b = rate.NewLimiter(l.limit*rate.Limit(scale), l.burst*scale)
 		l.buckets[tokenID] = b
 	}
 	r := b.ReserveN(now, 1)
@@ -122,7 +141,7 @@ func (l *tokenLimiter) allow(tokenID string, now time.Time) (bool, time.Duration
 // full too, so forgetting them changes no decision and bounds the memory.
 func (l *tokenLimiter) sweep(now time.Time) {
 	for id, b := range l.buckets {
-		if b.TokensAt(now) >= float64(l.burst) {
+		if b.TokensAt(now) >= float64(b.Burst()) {
 			delete(l.buckets, id)
 		}
 	}
@@ -138,14 +157,18 @@ func (s *Server) rateLimitMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 		if !ok || s.limiter == nil {
 			return next(c)
 		}
-		allowed, wait := s.limiter.allow(p.TokenID, time.Now())
+		scale := 1
+		if isMachineReader(p.Scopes) {
+			scale = ReaderRateFactor
+		}
+		allowed, wait := s.limiter.allowScaled(p.TokenID, scale, time.Now())
 		if allowed {
 			return next(c)
 		}
 		secs := max(1, int(math.Ceil(wait.Seconds())))
 		c.Response().Header().Set("Retry-After", strconv.Itoa(secs))
 		return newProblem(http.StatusTooManyRequests, "this token sends requests faster than "+
-			strconv.FormatFloat(float64(s.limiter.limit), 'g', -1, 64)+" per second (burst "+strconv.Itoa(s.limiter.burst)+
+			strconv.FormatFloat(float64(s.limiter.limit)*float64(scale), 'g', -1, 64)+" per second (burst "+strconv.Itoa(s.limiter.burst*scale)+
 			"); retry after "+strconv.Itoa(secs)+" s")
 	}
 }

@@ -390,18 +390,23 @@ func scoreCandidates(d *dataset, opt Options) ([]WeightScore, int) {
 		}
 		copy(w, pr)
 		normalise(w)
-		f, err := solveLSQ(opt.Model, d.x, d.y, w)
-		if err != nil {
-			sc.Note = "skipped: " + err.Error()
-			scores = append(scores, sc)
-			continue
+		var line [2]float64
+		beta, fast := line[:], lineForScore(opt.Model, d.x, d.y, w, &line)
+		if !fast {
+			f, err := solveLSQ(opt.Model, d.x, d.y, w)
+			if err != nil {
+				sc.Note = "skipped: " + err.Error()
+				scores = append(scores, sc)
+				continue
+			}
+			beta = f.beta
 		}
 		sum, ok := 0.0, true
 		for i := range d.x {
 			if d.x[i] == 0 {
 				continue
 			}
-			xb, _, found := invertCurve(opt.Model, f.beta, lo, hi, d.y[i])
+			xb, _, found := invertCurve(opt.Model, beta, lo, hi, d.y[i])
 			if !found {
 				ok = false
 				break
@@ -437,6 +442,55 @@ func scoreCandidates(d *dataset, opt Options) ([]WeightScore, int) {
 		scores[best].Advised = true
 	}
 	return scores, best
+}
+
+// lineForScore fits a weighted line (or line through the origin) in closed
+// form, only to rank the candidate weightings, without allocating:
+//
+//	b1 = Σw(x−x̄w)(y−ȳw) / Σw(x−x̄w)²,  b0 = ȳw − b1·x̄w   (line)
+//	b1 = Σwxy / Σwx²                                      (origin)
+//
+// with centred sums (Miller & Miller §5.10). The chosen weighting is then
+// fitted by the QR solve like any other, so ranking by these coefficients
+// changes no reported number; they agree with the QR solve to rounding. It
+// stores the coefficients in out (invertCurve's order: b0, b1 for a line,
+// b1 alone through the origin) and reports false for a quadratic or when the
+// sums leave nothing to divide by, where the caller uses solveLSQ.
+func lineForScore(m Model, x, y, w []float64, out *[2]float64) bool {
+	switch m {
+	case Linear:
+		var sw, swx, swy float64
+		for i := range x {
+			sw += w[i]
+			swx += w[i] * x[i]
+			swy += w[i] * y[i]
+		}
+		xm, ym := swx/sw, swy/sw
+		var sxx, sxy float64
+		for i := range x {
+			dx := x[i] - xm
+			sxx += w[i] * dx * dx
+			sxy += w[i] * dx * (y[i] - ym)
+		}
+		if !(sxx > 0) || len(x) <= 2 {
+			return false
+		}
+		b1 := sxy / sxx
+		out[0], out[1] = ym-b1*xm, b1
+		return true
+	case LinearOrigin:
+		var sxx, sxy float64
+		for i := range x {
+			sxx += w[i] * x[i] * x[i]
+			sxy += w[i] * x[i] * y[i]
+		}
+		if !(sxx > 0) || len(x) <= 1 {
+			return false
+		}
+		out[0] = sxy / sxx
+		return true
+	}
+	return false
 }
 
 // fewReadings returns the index of the first non-zero level with fewer than

@@ -241,8 +241,10 @@ func TestTLSAndRateLimit(t *testing.T) {
 	base := svc.base
 
 	c.must(http.StatusOK, "GET", base+"/healthz", "", nil)
-	_, reader1 := c.issueToken(base, admin, "lims-one", "results:read")
-	_, reader2 := c.issueToken(base, admin, "lims-two", "results:read")
+	// Reviewers' tokens: they keep the base limit (machine readers get
+	// api.ReaderRateFactor times it, tested in api).
+	_, reader1 := c.issueToken(base, admin, "qa-one", "curves:review")
+	_, reader2 := c.issueToken(base, admin, "qa-two", "curves:review")
 
 	plain, err := http.Get("http://" + strings.TrimPrefix(base, "https://") + "/healthz")
 	if err == nil {
