@@ -12,6 +12,7 @@ import (
 	"golang.org/x/time/rate"
 
 	"curvekeeper/api/qaui"
+	"curvekeeper/lab"
 )
 
 // securityHeadersMiddleware sets the headers every response carries,
@@ -87,7 +88,7 @@ const ReaderRateFactor = 5
 
 // isMachineReader reports whether scopes hold results:read and nothing else.
 func isMachineReader(scopes []string) bool {
-	return len(scopes) == 1 && scopes[0] == ScopeResultsRead
+	return len(scopes) == 1 && scopes[0] == lab.ScopeResultsRead
 }
 
 // tokenLimiter holds one token bucket per API token. It lives in the
