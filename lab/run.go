@@ -29,7 +29,8 @@ type Sample struct {
 	AcquiredAt *time.Time `json:"acquired_at,omitempty"`
 }
 
-// RunInput is a run as the api received and validated it.
+// RunInput is a run as received (whatever its format) and, once Ingest has
+// checked it against its method, as stored.
 type RunInput struct {
 	Method         string
 	MethodRevision int // the revision the curves were fitted with
@@ -49,7 +50,7 @@ type RunInput struct {
 	Samples        []Sample
 }
 
-// CurveInput is one fitted curve of a run, fitted by the api before
+// CurveInput is one fitted curve of a run, fitted by Ingest before
 // CreateRun (with calib.Fit, or calib.FailedReport when it could not be
 // fitted). Model, weighting, verdict and engine version are taken from Report.
 type CurveInput struct {

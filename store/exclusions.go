@@ -126,7 +126,7 @@ WHERE s.run_id = $1 AND s.analyte = $2 ORDER BY s.position`, runID, analyte)
 	if err != nil {
 		return nil, classify("select samples for revision", err)
 	}
-	f := &curveFacts{ID: pc.id, Status: lab.StatusPendingReview, Verdict: pc.verdict, Fitted: pc.scalars.slope != nil, FailedChecks: pc.failed}
+	f := &lab.CurveFacts{ID: pc.id, Status: lab.StatusPendingReview, Verdict: pc.verdict, Fitted: pc.scalars.slope != nil, FailedChecks: pc.failed}
 	var (
 		out       []pendingResult
 		position  int
@@ -135,9 +135,9 @@ WHERE s.run_id = $1 AND s.analyte = $2 ORDER BY s.position`, runID, analyte)
 		at        time.Time
 	)
 	_, err = pgx.ForEachRow(rows, []any{&position, &responses, &dilution, &at}, func() error {
-		state, reason := releaseOf(f, at)
+		state, reason := lab.ReleaseOf(f, at)
 		out = append(out, pendingResult{position: position, curveID: pc.id, unit: unit, acquiredAt: at,
-			q: quantify(pc.in.Report, responses, dilution), state: state, reason: reason})
+			q: lab.Quantify(pc.in.Report, responses, dilution), state: state, reason: reason})
 		return nil
 	})
 	if err != nil {

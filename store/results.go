@@ -3,62 +3,12 @@ package store
 import (
 	"context"
 	"errors"
-	"math"
 	"time"
 
 	"github.com/jackc/pgx/v5"
 
-	"curvekeeper/calib"
 	"curvekeeper/lab"
 )
-
-// quantity is the outcome of quantifying one sample.
-type quantity struct {
-	conc, se, low, high *float64
-	level               float64
-	bounded             bool
-	method              string
-	flags               []string
-	mean                float64
-}
-
-// quantify predicts the concentration of a sample from rep with the
-// dilution applied after inversion (calib.Report.Predict). A curve without a
-// fit, or readings the engine refuses, still give a result: without a
-// concentration, flagged, the interval method saying why.
-func quantify(rep *calib.Report, responses []float64, dilution float64) quantity {
-	q := quantity{level: rep.Confidence, flags: []string{}}
-	if !(q.level > 0 && q.level < 1) {
-		q.level = 0.95
-	}
-	for _, y := range responses {
-		q.mean += y / float64(len(responses))
-	}
-	if len(rep.Coefficients) == 0 {
-		q.flags, q.method = []string{lab.FlagNoCurve}, "none: the curve could not be fitted"
-		return q
-	}
-	p, err := rep.Predict(responses, dilution, 0)
-	if err != nil {
-		q.flags, q.method = []string{lab.FlagNotQuantifiable}, "none: "+err.Error()
-		return q
-	}
-	q.mean, q.method, q.flags, q.level = p.MeanResponse, p.Method, append(q.flags, p.Flags...), p.Interval.Level
-	if p.HasEstimate() {
-		q.conc, q.se = fptr(p.Concentration), fptr(p.StandardError)
-	}
-	if p.Interval.Bounded {
-		q.low, q.high = fptr(p.Interval.Low), fptr(p.Interval.High)
-		q.bounded = q.low != nil && q.high != nil
-		if !q.bounded {
-			q.low, q.high = nil, nil
-		}
-	}
-	if math.IsNaN(q.mean) || math.IsInf(q.mean, 0) {
-		q.mean = 0
-	}
-	return q
-}
 
 // pendingResult is a result about to be inserted for the run sample at
 // position of runID.
@@ -67,7 +17,7 @@ type pendingResult struct {
 	curveID    string
 	unit       string
 	acquiredAt time.Time
-	q          quantity
+	q          lab.Quantity
 	state      string
 	reason     string
 }
@@ -90,8 +40,8 @@ func insertResults(ctx context.Context, tx pgx.Tx, runID string, rs []pendingRes
 	b := &pgx.Batch{}
 	for _, r := range rs {
 		q := r.q
-		b.Queue(sqlInsertResult, runID, r.position, r.curveID, r.unit, r.acquiredAt, q.mean, q.conc, q.se,
-			q.low, q.high, q.level, q.bounded, q.method, q.flags, r.state, r.reason, actor)
+		b.Queue(sqlInsertResult, runID, r.position, r.curveID, r.unit, r.acquiredAt, q.Mean, q.Conc, q.SE,
+			q.Low, q.High, q.Level, q.Bounded, q.Method, q.Flags, r.state, r.reason, actor)
 	}
 	br := tx.SendBatch(ctx, b)
 	for _, r := range rs {

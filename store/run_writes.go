@@ -303,8 +303,8 @@ func runRows(group []*runWrite, claims bool) (*pgx.Batch, error) {
 		}
 		for _, p := range runResults(in, w.curves) {
 			q := p.q
-			results.Queue(sqlGroupInsertResult, w.runID, p.position, p.curveID, p.unit, p.acquiredAt, q.mean, q.conc, q.se,
-				q.low, q.high, q.level, q.bounded, q.method, q.flags, p.state, p.reason, in.Actor, lab.CauseRunCreate)
+			results.Queue(sqlGroupInsertResult, w.runID, p.position, p.curveID, p.unit, p.acquiredAt, q.Mean, q.Conc, q.SE,
+				q.Low, q.High, q.Level, q.Bounded, q.Method, q.Flags, p.state, p.reason, in.Actor, lab.CauseRunCreate)
 		}
 	}
 	if claims && len(kKeys) > 0 {

@@ -288,16 +288,16 @@ func runResults(in *lab.RunInput, curves []preparedCurve) []pendingResult {
 	for i, s := range in.Samples {
 		c, ok := byAnalyte[s.Analyte]
 		if !ok {
-			continue // the api refuses such a sample; nothing to quantify it against
+			continue // lab.Ingest refuses such a sample; nothing to quantify it against
 		}
-		f := &curveFacts{ID: c.id, Status: lab.StatusPendingReview, Verdict: c.verdict, Fitted: c.scalars.slope != nil, FailedChecks: c.failed}
+		f := &lab.CurveFacts{ID: c.id, Status: lab.StatusPendingReview, Verdict: c.verdict, Fitted: c.scalars.slope != nil, FailedChecks: c.failed}
 		at := in.AcquiredAt
 		if s.AcquiredAt != nil {
 			at = *s.AcquiredAt
 		}
-		state, reason := releaseOf(f, at)
+		state, reason := lab.ReleaseOf(f, at)
 		out = append(out, pendingResult{position: i, curveID: c.id, unit: c.in.Unit, acquiredAt: at,
-			q: quantify(c.in.Report, s.Responses, s.Dilution), state: state, reason: reason})
+			q: lab.Quantify(c.in.Report, s.Responses, s.Dilution), state: state, reason: reason})
 	}
 	return out
 }

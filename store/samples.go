@@ -114,7 +114,7 @@ FROM runs r WHERE r.id = $1`, runID).Scan(&runAt, &next)
 			return classify("scan samples of run "+runID, err)
 		}
 		var pending []pendingResult
-		facts := map[string]*curveFacts{}
+		facts := map[string]*lab.CurveFacts{}
 		b := &pgx.Batch{}
 		for i, s := range in {
 			p := fmt.Sprintf("/samples/%d", i)
@@ -136,10 +136,10 @@ FROM runs r WHERE r.id = $1`, runID).Scan(&runAt, &next)
 				}
 				facts[c.id] = f
 			}
-			state, reason := releaseOf(f, *s.AcquiredAt)
+			state, reason := lab.ReleaseOf(f, *s.AcquiredAt)
 			b.Queue(sqlInsertSample, runID, next+i, s.ID, s.Analyte, s.Responses, s.Dilution, s.AcquiredAt)
 			pending = append(pending, pendingResult{position: next + i, curveID: c.id, unit: c.unit, acquiredAt: *s.AcquiredAt,
-				q: quantify(c.report, s.Responses, s.Dilution), state: state, reason: reason})
+				q: lab.Quantify(c.report, s.Responses, s.Dilution), state: state, reason: reason})
 		}
 		if err := tx.SendBatch(ctx, b).Close(); err != nil {
 			if pgCode(err) == codeUniqueViolation {
