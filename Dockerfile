@@ -5,7 +5,7 @@
 #   docker build -t curvekeeper .
 #   docker run -p 8080:8080 -e DATABASE_URL=postgres://user:pass@db:5432/curvekeeper curvekeeper
 
-FROM golang:1.26.8-bookworm AS build
+FROM golang:1.27.3-bookworm AS build
 WORKDIR /src
 COPY go.mod go.sum ./
 RUN go mod download

@@ -33,7 +33,7 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 	if q.Limit != nil {
 		f.Limit = *q.Limit
 	}
-	page, err := s.lab.ListCurves(ctx, f)
+	page, err := s.reads(ctx).ListCurves(ctx, f) // history tolerates the replicas' lag
 	if err != nil {
 		return nil, err
 	}

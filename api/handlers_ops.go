@@ -18,7 +18,9 @@ func (s *Server) GetHealthz(ctx context.Context, _ oapi.GetHealthzRequestObject)
 	return oapi.GetHealthz200JSONResponse{Status: oapi.HealthOK}, nil
 }
 
-// GetReadyz answers 200 when the database answers and its schema is current.
+// GetReadyz answers 200 when the database answers and its schema is current,
+// saying whether the instance serves reads only and how its read replicas
+// stand.
 func (s *Server) GetReadyz(ctx context.Context, _ oapi.GetReadyzRequestObject) (oapi.GetReadyzResponseObject, error) {
 	ctx, cancel := context.WithTimeout(ctx, 2*time.Second)
 	defer cancel()
@@ -29,7 +31,26 @@ func (s *Server) GetReadyz(ctx context.Context, _ oapi.GetReadyzRequestObject) (
 	if err := s.lab.CheckSchema(ctx); err != nil {
 		return nil, newProblem(http.StatusServiceUnavailable, err.Error())
 	}
-	return oapi.GetReadyz200JSONResponse{Status: oapi.HealthReady}, nil
+	out := oapi.GetReadyz200JSONResponse{Status: oapi.ReadinessReady, Mode: oapi.ModeReadWrite}
+	if s.topo.ReadOnly() {
+		out.Mode = oapi.ModeReadOnly
+	}
+	if s.topo.HasReplicas() {
+		reps := make([]oapi.ReplicaReadiness, 0, len(s.topo.Replicas()))
+		for i, r := range s.topo.Replicas() {
+			rr := oapi.ReplicaReadiness{Replica: i + 1, InUse: r.InUse}
+			if r.Lag >= 0 {
+				lag := r.Lag.Seconds()
+				rr.LagSeconds = &lag
+			}
+			if r.Reason != "" {
+				rr.Reason = &r.Reason
+			}
+			reps = append(reps, rr)
+		}
+		out.Replicas = &reps
+	}
+	return out, nil
 }
 
 // GetMetrics serves the Prometheus text exposition of the server's registry.

@@ -47,6 +47,7 @@ func DefaultConfig() Config {
 type Server struct {
 	cfg     Config
 	lab     *lab.Service
+	topo    lab.Topology // the database's replication (read-only mode, read replicas)
 	ui      *qaui.Pages
 	log     *slog.Logger
 	echo    *echo.Echo
@@ -90,7 +91,7 @@ func New(cfg Config, svc *lab.Service, log *slog.Logger) (*Server, error) {
 	if err != nil {
 		return nil, err
 	}
-	s := &Server{cfg: cfg, lab: svc, log: log, echo: e, metrics: newMetrics(svc),
+	s := &Server{cfg: cfg, lab: svc, topo: svc.Topology(), log: log, echo: e, metrics: newMetrics(svc),
 		scopes: newScopeTable(doc), curves: newCurveCache(1024),
 		authFailures: newTokenLimiter(AuthFailureRate, AuthFailureBurst)}
 	switch {
@@ -104,7 +105,8 @@ func New(cfg Config, svc *lab.Service, log *slog.Logger) (*Server, error) {
 	}
 	e.HTTPErrorHandler = s.errorHandler
 	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware, s.framingMiddleware,
-		s.timeoutMiddleware, s.bodyLimitMiddleware, s.authMiddleware, s.rateLimitMiddleware, validator)
+		s.timeoutMiddleware, s.bodyLimitMiddleware, s.replicationMiddleware, s.authMiddleware, s.rateLimitMiddleware, validator)
+	s.metrics.registry.MustRegister(newReplicationCollector(s.topo))
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
 	s.ui = qaui.New(qaui.Deps{Lab: svc, Log: log, Curve: s.freshCurve, Reviewed: s.curves.drop,
 		Plot:       func(ctx context.Context, id string) ([]byte, error) { return s.plot(ctx, id, curveplot.FormatSVG) },

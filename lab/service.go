@@ -62,10 +62,12 @@ type Writer interface {
 	DeleteSession(ctx context.Context, secret string) error
 }
 
-// Store is every persistence the lab's rules need.
+// Store is every persistence the lab's rules need, and the database's
+// replication as the api sees it.
 type Store interface {
 	Reader
 	Writer
+	Topology
 }
 
 // Service applies the lab's rules over a store. Its reads are the
@@ -73,10 +75,14 @@ type Store interface {
 type Service struct {
 	Reader
 	store Writer
+	topo  Topology
 }
 
 // NewService returns the rules over st.
-func NewService(st Store) *Service { return &Service{Reader: st, store: st} }
+func NewService(st Store) *Service { return &Service{Reader: st, store: st, topo: st} }
+
+// Topology returns the database's replication, for the api.
+func (s *Service) Topology() Topology { return s.topo }
 
 // DefineMethod stores a method definition as its next revision (see
 // Writer.CreateMethod), on behalf of p.

@@ -26,6 +26,9 @@ type DB struct {
 	runWrites  *runWrites // see run_writes.go
 
 	methodDecodes methodDecodes // see methods.go
+
+	appRole bool          // connections SET ROLE curvekeeper_app (OpenApp)
+	recov   recoveryState // see replicas.go: read-only mode and read replicas
 }
 
 // AppRole is the role the service works as (migrations/000005_app_role):
@@ -84,6 +87,19 @@ func assumeAppRole(ctx context.Context, conn *pgx.Conn) error {
 }
 
 func open(ctx context.Context, url string, appRole bool) (*DB, error) {
+	pool, err := newPool(ctx, url, appRole)
+	if err != nil {
+		return nil, err
+	}
+	if err := pool.Ping(ctx); err != nil {
+		pool.Close()
+		return nil, fmt.Errorf("store: connect: %w", err)
+	}
+	return &DB{Pool: pool, appRole: appRole}, nil
+}
+
+// newPool makes the pool of url without connecting yet.
+func newPool(ctx context.Context, url string, appRole bool) (*pgxpool.Pool, error) {
 	cfg, err := pgxpool.ParseConfig(url)
 	if err != nil {
 		return nil, fmt.Errorf("store: parse database url: %w", err)
@@ -101,15 +117,15 @@ func open(ctx context.Context, url string, appRole bool) (*DB, error) {
 	if err != nil {
 		return nil, fmt.Errorf("store: open pool: %w", err)
 	}
-	if err := pool.Ping(ctx); err != nil {
-		pool.Close()
-		return nil, fmt.Errorf("store: connect: %w", err)
-	}
-	return &DB{Pool: pool}, nil
+	return pool, nil
 }
 
-// Close closes every connection of the pool.
-func (db *DB) Close() { db.Pool.Close() }
+// Close closes every connection of the pool and of the read replicas'
+// pools.
+func (db *DB) Close() {
+	db.closeReplicas()
+	db.Pool.Close()
+}
 
 // Ping reports whether the database answers.
 func (db *DB) Ping(ctx context.Context) error { return db.Pool.Ping(ctx) }

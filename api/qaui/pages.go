@@ -99,8 +99,8 @@ func (s *Pages) render(c echo.Context, status int, name string, d pageData) erro
 	return c.HTMLBlob(status, buf.Bytes())
 }
 
-// uiError renders an error page with the status and a message for people.
-func (s *Pages) uiError(c echo.Context, status int, msg string) error {
+// Error renders an error page with the status and a message for people.
+func (s *Pages) Error(c echo.Context, status int, msg string) error {
 	return s.render(c, status, "error", pageData{Title: http.StatusText(status), Message: msg})
 }
 
@@ -126,7 +126,7 @@ func (s *Pages) Fail(c echo.Context, err error) error {
 	case status >= 500:
 		s.Log.Error("ui request failed", "request_id", s.RequestID(c), "error", err.Error())
 	}
-	return s.uiError(c, status, msg)
+	return s.Error(c, status, msg)
 }
 
 // StylePath is where the style sheet is served (cached: see
@@ -496,7 +496,7 @@ func (s *Pages) uiTrendPage(c echo.Context) error {
 func (s *Pages) uiTrendPlot(c echo.Context) error {
 	tq, _, problem := trendQueryFrom(c.QueryParams())
 	if problem != "" || tq.Instrument == "" || tq.Analyte == "" {
-		return s.uiError(c, http.StatusBadRequest, "Name an instrument and an analyte. "+problem)
+		return s.Error(c, http.StatusBadRequest, "Name an instrument and an analyte. "+problem)
 	}
 	t, err := s.Lab.Trend(c.Request().Context(), tq)
 	if err != nil {

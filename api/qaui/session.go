@@ -124,10 +124,10 @@ func (s *Pages) requireSession(scopes ...string) echo.MiddlewareFunc {
 				if c.Request().Method == http.MethodGet {
 					return c.Redirect(http.StatusSeeOther, "/ui/sign-in?next="+url.QueryEscape(c.Request().URL.RequestURI()))
 				}
-				return s.uiError(c, http.StatusUnauthorized, "You are not signed in, or your session has ended. Sign in again and repeat the action.")
+				return s.Error(c, http.StatusUnauthorized, "You are not signed in, or your session has ended. Sign in again and repeat the action.")
 			}
 			if len(scopes) > 0 && !u.Has(scopes...) {
-				return s.uiError(c, http.StatusForbidden, "Your token does not hold any of the scopes this page needs: "+strings.Join(scopes, ", ")+".")
+				return s.Error(c, http.StatusForbidden, "Your token does not hold any of the scopes this page needs: "+strings.Join(scopes, ", ")+".")
 			}
 			return next(c)
 		}
@@ -139,7 +139,7 @@ func (s *Pages) requireCSRF(next echo.HandlerFunc) echo.HandlerFunc {
 	return func(c echo.Context) error {
 		u := sessionOf(c)
 		if u == nil || !sameToken(c.FormValue(uiCSRFField), u.CSRF) {
-			return s.uiError(c, http.StatusForbidden, "The form's security token is missing or does not belong to your session. Reload the page and try again.")
+			return s.Error(c, http.StatusForbidden, "The form's security token is missing or does not belong to your session. Reload the page and try again.")
 		}
 		return next(c)
 	}
@@ -176,10 +176,10 @@ func (s *Pages) renderSignIn(c echo.Context, status int, problem string) error {
 func (s *Pages) signIn(c echo.Context) error {
 	ck, err := c.Cookie(uiSignInCookie)
 	if err != nil || !sameToken(c.FormValue(uiCSRFField), ck.Value) {
-		return s.uiError(c, http.StatusForbidden, "The sign-in form's security token is missing or expired. Open the sign-in page again.")
+		return s.Error(c, http.StatusForbidden, "The sign-in form's security token is missing or expired. Open the sign-in page again.")
 	}
 	if secs := s.AuthFailureWait(c); secs > 0 {
-		return s.uiError(c, http.StatusTooManyRequests, "Too many failed sign-ins from this address. Wait "+strconv.Itoa(secs)+" s and try again.")
+		return s.Error(c, http.StatusTooManyRequests, "Too many failed sign-ins from this address. Wait "+strconv.Itoa(secs)+" s and try again.")
 	}
 	token := strings.TrimSpace(c.FormValue("token"))
 	if !s.ValidToken(token) {

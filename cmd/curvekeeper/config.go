@@ -28,6 +28,11 @@ type config struct {
 	TLSCert         string // PEM certificate chain; with TLSKey the service speaks HTTPS only
 	TLSKey          string
 	PprofListen     string // "" (default): no profiling listener
+	// ReadURLs are read replicas (hot standbys of DatabaseURL's primary)
+	// that lag-tolerant reads may use; empty: every read on DatabaseURL.
+	ReadURLs      []string
+	MaxReplicaLag time.Duration // above it a replica gets no reads
+	CheckInterval time.Duration // how often recovery and replica lag are checked
 }
 
 // usageError is a bad command line or setting; it exits with status 2.
@@ -67,6 +72,9 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	fs.StringVar(&cfg.TLSKey, "tls-key", env("CURVEKEEPER_TLS_KEY", ""), "PEM private key file of --tls-cert (CURVEKEEPER_TLS_KEY)")
 	fs.StringVar(&cfg.LogLevel, "log-level", env("CURVEKEEPER_LOG_LEVEL", "info"), "debug, info, warn or error (CURVEKEEPER_LOG_LEVEL)")
 	fs.StringVar(&cfg.PprofListen, "pprof-listen", env("CURVEKEEPER_PPROF_LISTEN", ""), "loopback host:port for /debug/pprof; empty is off (CURVEKEEPER_PPROF_LISTEN)")
+	readURLs := fs.String("database-read-url", env("DATABASE_READ_URL", ""), "comma-separated PostgreSQL URLs of read replicas (hot standbys of the primary) for lag-tolerant reads (DATABASE_READ_URL)")
+	maxLag := fs.String("replica-max-lag", env("CURVEKEEPER_REPLICA_MAX_LAG", "10s"), "a replica lagging more gets no reads (CURVEKEEPER_REPLICA_MAX_LAG)")
+	checkEvery := fs.String("replica-check-interval", env("CURVEKEEPER_REPLICA_CHECK_INTERVAL", "1s"), "how often the service checks whether its database is a standby and how far replicas lag (CURVEKEEPER_REPLICA_CHECK_INTERVAL)")
 	cfg.BootstrapToken = getenv("CURVEKEEPER_BOOTSTRAP_TOKEN")
 	// Flags may come before or after positional arguments ("migrate down 1
 	// --database-url …"): the flag package stops at the first positional one,
@@ -106,6 +114,8 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 		{"--request-timeout", *reqTimeout, &cfg.RequestTimeout},
 		{"--shutdown-timeout", *shutTimeout, &cfg.ShutdownTimeout},
 		{"--migrate-lock-timeout", *lockWait, &cfg.MigrateLockWait},
+		{"--replica-max-lag", *maxLag, &cfg.MaxReplicaLag},
+		{"--replica-check-interval", *checkEvery, &cfg.CheckInterval},
 	}
 	for _, d := range durations {
 		v, err := time.ParseDuration(d.in)
@@ -113,6 +123,17 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 			return cfg, nil, &usageError{fmt.Sprintf("%s %q: want a positive duration such as 15s", d.name, d.in)}
 		}
 		*d.out = v
+	}
+	for _, u := range strings.Split(*readURLs, ",") {
+		if u = strings.TrimSpace(u); u != "" {
+			cfg.ReadURLs = append(cfg.ReadURLs, u)
+		}
+	}
+	if len(cfg.ReadURLs) > 0 && cfg.DatabaseURL == "" {
+		return cfg, nil, &usageError{"--database-read-url needs --database-url: read replicas are standbys of a primary server, not of the private cluster"}
+	}
+	if len(cfg.ReadURLs) > 64 {
+		return cfg, nil, &usageError{"--database-read-url: at most 64 replicas"}
 	}
 	if err := checkPprofListen(cfg.PprofListen); err != nil {
 		return cfg, nil, err

@@ -131,13 +131,26 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 		return fmt.Errorf("cannot reach the database (%s): %s", redactURL(dbase.url), oneLine(errors.Unwrap(err)))
 	}
 	defer db.Close()
-	if err := store.MigrateUp(ctx, dbase.url, cfg.MigrateLockWait); err != nil {
+	if err := prepareSchema(ctx, cfg, db, dbase.url, log); err != nil {
 		return err
 	}
-	if err := db.CheckSchema(ctx); err != nil {
-		return err
+	if len(cfg.ReadURLs) > 0 {
+		if err := db.AttachReplicas(ctx, cfg.ReadURLs, store.ReplicaOptions{MaxLag: cfg.MaxReplicaLag}); err != nil {
+			return err
+		}
+		if err := db.Refresh(connectCtx); err != nil {
+			return fmt.Errorf("check the read replicas: %w", err)
+		}
+		for _, r := range db.Replicas() {
+			log.Info("read replica", "replica", r.Name, "in_use", r.InUse, "reason", r.Reason)
+		}
 	}
-	if cfg.BootstrapToken != "" {
+	watchCtx, stopWatch := context.WithCancel(ctx)
+	defer stopWatch()
+	go db.Watch(watchCtx, cfg.CheckInterval, log)
+	if cfg.BootstrapToken != "" && db.ReadOnly() {
+		log.Warn("bootstrap token not stored: the database is a standby; an instance on the primary stores it")
+	} else if cfg.BootstrapToken != "" {
 		if _, _, err := db.EnsureToken(ctx, "bootstrap", cfg.BootstrapToken, []string{"admin"}); err != nil {
 			return fmt.Errorf("store the bootstrap token: %w", err)
 		}
@@ -185,7 +198,7 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 	addr := ln.Addr().String()
 	fmt.Fprintf(stdout, "curvekeeper: listening on %s://%s\n", scheme, addr)
 	fmt.Fprintf(stdout, "curvekeeper: data in %s\n", dbase.where())
-	log.Info("ready", "listen", addr, "database", dbase.where(), "startup_ms", time.Since(started).Milliseconds())
+	log.Info("ready", "listen", addr, "database", dbase.where(), "read_only", db.ReadOnly(), "replicas", len(cfg.ReadURLs), "startup_ms", time.Since(started).Milliseconds())
 
 	select {
 	case err := <-errc:
@@ -201,6 +214,33 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 	}
 	fmt.Fprintln(stdout, "curvekeeper: stopped")
 	return nil
+}
+
+// prepareSchema migrates the database, or, when it is a standby in recovery
+// (which refuses writes), skips the migrations and serves reads only; either
+// way the schema must then be the one this binary needs. A standby's schema
+// comes from its primary: when it is behind, the primary is migrated first
+// (by an instance of this version started on it, or `curvekeeper migrate
+// up`), and the standby follows by replaying it.
+func prepareSchema(ctx context.Context, cfg config, db *store.DB, url string, log *slog.Logger) error {
+	standby, err := db.InRecovery(ctx)
+	if err != nil {
+		return fmt.Errorf("ask the database whether it is a standby: %w", err)
+	}
+	if !standby {
+		if err := store.MigrateUp(ctx, url, cfg.MigrateLockWait); err != nil {
+			return err
+		}
+		return db.CheckSchema(ctx)
+	}
+	log.Warn("the database is a standby in recovery: migrations skipped, serving reads only (writes answer 503) until it is promoted")
+	err = db.CheckSchema(ctx)
+	var se *store.SchemaError
+	if errors.As(err, &se) && !se.Dirty && se.Version < se.Latest {
+		return fmt.Errorf("the standby's schema is at version %d but this curvekeeper needs %d, and a standby cannot be migrated: "+
+			"migrate the primary (start this version on it, or run `curvekeeper migrate up` against it), let the standby replay it, then start again", se.Version, se.Latest)
+	}
+	return err
 }
 
 // loadTLS reads --tls-cert and --tls-key; nil when neither is given.

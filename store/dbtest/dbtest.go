@@ -68,7 +68,7 @@ var (
 // and exits with the tests' status.
 func Main(m *testing.M) {
 	code := m.Run()
-	if err := shutdown(); err != nil {
+	if err := errors.Join(shutdown(), shutdownReplication()); err != nil {
 		fmt.Fprintln(os.Stderr, "dbtest:", err)
 		if code == 0 {
 			code = 1
@@ -103,30 +103,36 @@ func setup(ctx context.Context) (*server, error) {
 		}
 		s.cluster, s.clusterDir, s.url = c, dir, c.URL()
 	}
+	if err := s.prepare(ctx); err != nil {
+		s.close()
+		return nil, err
+	}
+	return s, nil
+}
+
+// prepare opens the admin pool on s.url and makes sure the migrated
+// template exists.
+func (s *server) prepare(ctx context.Context) error {
 	cfg, err := pgxpool.ParseConfig(s.url)
 	if err != nil {
-		s.close()
-		return nil, fmt.Errorf("dbtest: parse database url: %w", err)
+		return fmt.Errorf("dbtest: parse database url: %w", err)
 	}
 	cfg.MaxConns = 4
 	if cfg.ConnConfig.ConnectTimeout == 0 {
 		cfg.ConnConfig.ConnectTimeout = 5 * time.Second
 	}
 	if s.admin, err = pgxpool.NewWithConfig(ctx, cfg); err != nil {
-		s.close()
-		return nil, fmt.Errorf("dbtest: connect: %w", err)
+		return fmt.Errorf("dbtest: connect: %w", err)
 	}
 	name, err := templateName(migrations.FS)
 	if err != nil {
-		s.close()
-		return nil, err
+		return err
 	}
 	if err := ensureTemplate(ctx, s.admin, s.url, name); err != nil {
-		s.close()
-		return nil, err
+		return err
 	}
 	s.template = name
-	return s, nil
+	return nil
 }
 
 func shutdown() error {

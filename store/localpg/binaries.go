@@ -28,6 +28,23 @@ type binaries struct {
 	postgres string
 }
 
+// tool returns the path of another program of the same installation
+// (pg_basebackup, pg_ctl), which Start does not need and so does not check:
+// the one beside postgres, else the one beside the file postgres links to
+// (a folder on PATH may hold links to a few programs only).
+func (b binaries) tool(name string) string {
+	p := filepath.Join(b.dir, name)
+	if executable(p) {
+		return p
+	}
+	if real, err := filepath.EvalSymlinks(b.postgres); err == nil {
+		if q := filepath.Join(filepath.Dir(real), name); executable(q) {
+			return q
+		}
+	}
+	return p
+}
+
 // searchDirs lists the folders to search, in order: override when non-nil,
 // otherwise PATH and then /usr/lib/postgresql/*/bin, newest version first.
 func searchDirs(override []string) []string {

@@ -67,6 +67,11 @@ type Options struct {
 	// StartTimeout bounds the wait for the server to accept connections and
 	// for a server left over by an earlier run to stop; 30 s when zero.
 	StartTimeout time.Duration
+	// Settings are extra server settings, each "name=value", passed to
+	// postgres with -c (they win over postgresql.conf and ALTER SYSTEM).
+	// Tests use them for a small shared_buffers, fewer connections and
+	// synchronous_standby_names.
+	Settings []string
 }
 
 // Cluster is a running private PostgreSQL server.
@@ -85,12 +90,22 @@ type Cluster struct {
 
 	stopOnce sync.Once
 	stopErr  error
+
+	bins binaries
+	acct account
 }
 
 // Start starts the cluster in opt.DataDir, creating it first when the folder
 // holds none, and returns once the server accepts connections on its socket
 // and the database curvekeeper exists.
 func Start(ctx context.Context, opt Options) (*Cluster, error) {
+	return start(ctx, opt, nil)
+}
+
+// start is Start; with primary set, a cluster missing from opt.DataDir is
+// made as a streaming standby of primary (see StartStandby) instead of by
+// initdb.
+func start(ctx context.Context, opt Options, primary *standbySource) (*Cluster, error) {
 	if opt.DataDir == "" {
 		return nil, errors.New("localpg: no data folder given")
 	}
@@ -118,6 +133,10 @@ func Start(ctx context.Context, opt Options) (*Cluster, error) {
 	if b, err := os.ReadFile(filepath.Join(c.pgData, "PG_VERSION")); err == nil {
 		wantMajor = strings.TrimSpace(string(b))
 	}
+	fresh := wantMajor == ""
+	if fresh && primary != nil {
+		wantMajor = primary.major // a standby runs the primary's major version
+	}
 	bins, err := findBinaries(searchDirs(opt.SearchPath), wantMajor)
 	if err != nil {
 		return nil, err
@@ -138,7 +157,13 @@ func Start(ctx context.Context, opt Options) (*Cluster, error) {
 			c.lock.Close()
 		}
 	}()
-	if wantMajor == "" {
+	c.bins, c.acct = bins, acct
+	switch {
+	case fresh && primary != nil:
+		if err := c.basebackup(ctx, primary, opt.NoSync); err != nil {
+			return nil, err
+		}
+	case fresh:
 		if err := c.initdb(ctx, bins, acct, opt.NoSync); err != nil {
 			return nil, err
 		}
@@ -152,7 +177,7 @@ func Start(ctx context.Context, opt Options) (*Cluster, error) {
 	if err := c.makeSocketDir(acct); err != nil {
 		return nil, err
 	}
-	if err := c.startServer(bins, acct, opt.NoSync); err != nil {
+	if err := c.startServer(bins, acct, opt.NoSync, opt.Settings); err != nil {
 		c.removeTempSocketDir()
 		return nil, err
 	}
@@ -357,7 +382,7 @@ const maxLogSize = 8 << 20
 // started the child exits, so this ties the signal to the death of our
 // process and not to an arbitrary thread ending. If curvekeeper dies without
 // Stop (even SIGKILL), the server gets SIGINT and shuts down fast.
-func (c *Cluster) startServer(bins binaries, acct account, noSync bool) error {
+func (c *Cluster) startServer(bins binaries, acct account, noSync bool, settings []string) error {
 	if fi, err := os.Stat(c.logPath); err == nil && fi.Size() > maxLogSize {
 		_ = os.Rename(c.logPath, c.logPath+".1")
 	}
@@ -371,6 +396,9 @@ func (c *Cluster) startServer(bins binaries, acct account, noSync bool) error {
 		"-c", "listen_addresses=", "-c", "unix_socket_permissions=0700"}
 	if noSync {
 		args = append(args, "-c", "fsync=off", "-c", "synchronous_commit=off", "-c", "full_page_writes=off")
+	}
+	for _, kv := range settings {
+		args = append(args, "-c", kv)
 	}
 	cmd := exec.Command(bins.postgres, args...)
 	cmd.Dir = c.pgData
