@@ -9,15 +9,7 @@ import (
 	"github.com/getkin/kin-openapi/openapi3"
 	"github.com/labstack/echo/v4"
 
-	"curvekeeper/store"
-)
-
-// Scopes a token may hold. Admin holds every other scope too.
-const (
-	ScopeRunsWrite    = "runs:write"
-	ScopeResultsRead  = "results:read"
-	ScopeCurvesReview = "curves:review"
-	ScopeAdmin        = "admin"
+	"curvekeeper/lab"
 )
 
 type principalKey struct{}
@@ -38,23 +30,8 @@ func prefetchedStatus(ctx context.Context, id string) (string, bool) {
 	return cs.status, true
 }
 
-// Principal is the caller a request was authenticated as.
-type Principal struct {
-	TokenID string
-	Name    string
-	Scopes  []string
-}
-
-// Has reports whether the principal holds scope (admin holds all).
-func (p Principal) Has(scope string) bool {
-	return slices.Contains(p.Scopes, ScopeAdmin) || slices.Contains(p.Scopes, scope)
-}
-
-// Actor names the principal in the audit trail.
-func (p Principal) Actor() string { return "token:" + p.Name + ":" + p.TokenID }
-
-func principalFrom(ctx context.Context) (Principal, bool) {
-	p, ok := ctx.Value(principalKey{}).(Principal)
+func principalFrom(ctx context.Context) (lab.Principal, bool) {
+	p, ok := ctx.Value(principalKey{}).(lab.Principal)
 	return p, ok
 }
 
@@ -117,7 +94,7 @@ func (s *Server) authMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 			return newProblem(http.StatusUnauthorized, "send Authorization: Bearer <token>")
 		}
 		var (
-			tok    store.Token
+			p      lab.Principal
 			status string
 			err    error
 		)
@@ -126,22 +103,21 @@ func (s *Server) authMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 			// the handler needs too: still a fresh read of the token on
 			// every request, so a revocation holds from the next request
 			// on, on every replica.
-			tok, status, err = s.db.LookupTokenAndCurveStatus(c.Request().Context(), secret, c.Param("id"))
+			p, status, err = s.lab.LookupTokenAndCurveStatus(c.Request().Context(), secret, c.Param("id"))
 		} else {
-			tok, err = s.db.LookupToken(c.Request().Context(), secret)
+			p, err = s.lab.LookupToken(c.Request().Context(), secret)
 		}
 		if err != nil {
-			if store.KindOf(err) == store.KindNotFound {
+			if lab.KindOf(err) == lab.KindNotFound {
 				s.authFailed(c)
 				c.Response().Header().Set("WWW-Authenticate", `Bearer realm="curvekeeper", error="invalid_token"`)
 				return newProblem(http.StatusUnauthorized, "the token is unknown or revoked")
 			}
 			return err
 		}
-		p := Principal{TokenID: tok.ID, Name: tok.Name, Scopes: tok.Scopes}
 		need, known := s.scopes[c.Request().Method+" "+c.Path()]
 		if !known && c.Path() != "" && c.Path() != "/*" {
-			need = []string{ScopeAdmin} // a route the spec gives no scopes is admin-only
+			need = []string{lab.ScopeAdmin} // a route the spec gives no scopes is admin-only
 		}
 		if len(need) > 0 && !slices.ContainsFunc(need, p.Has) {
 			return newProblem(http.StatusForbidden, "this route needs one of the scopes "+strings.Join(need, ", "))

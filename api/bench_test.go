@@ -14,6 +14,7 @@ import (
 
 	"curvekeeper/api"
 	"curvekeeper/cmd/curvekeeper-bench/procstat"
+	"curvekeeper/lab"
 	"curvekeeper/store/dbtest"
 )
 
@@ -27,7 +28,7 @@ import (
 //	go test ./api -run '^$' -bench PredictRoute -benchmem -cpuprofile /tmp/predict.pprof
 func BenchmarkPredictRoute(b *testing.B) {
 	db := dbtest.NewDB(b)
-	s, err := api.New(api.Config{RateLimit: -1}, db, slog.New(slog.NewJSONHandler(io.Discard, nil)))
+	s, err := api.New(api.Config{RateLimit: -1}, lab.NewService(db), slog.New(slog.NewJSONHandler(io.Discard, nil)))
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -90,7 +91,7 @@ func processCPU() int64 {
 //	go test ./api -run '^$' -bench IngestRoute -benchmem -benchtime 2000x
 func BenchmarkIngestRoute(b *testing.B) {
 	db := dbtest.NewDB(b)
-	s, err := api.New(api.Config{RateLimit: -1}, db, slog.New(slog.NewJSONHandler(io.Discard, nil)))
+	s, err := api.New(api.Config{RateLimit: -1}, lab.NewService(db), slog.New(slog.NewJSONHandler(io.Discard, nil)))
 	if err != nil {
 		b.Fatal(err)
 	}

@@ -4,7 +4,7 @@ import (
 	"container/list"
 	"sync"
 
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // curveCache is a bounded LRU of stored curves by id. Curves' fits are
@@ -13,7 +13,7 @@ import (
 type curveCache struct {
 	mu    sync.Mutex
 	max   int
-	order *list.List // front = most recent; values are *store.Curve
+	order *list.List // front = most recent; values are *lab.Curve
 	byID  map[string]*list.Element
 }
 
@@ -21,7 +21,7 @@ func newCurveCache(max int) *curveCache {
 	return &curveCache{max: max, order: list.New(), byID: make(map[string]*list.Element, max)}
 }
 
-func (c *curveCache) get(id string) (*store.Curve, bool) {
+func (c *curveCache) get(id string) (*lab.Curve, bool) {
 	c.mu.Lock()
 	defer c.mu.Unlock()
 	el, ok := c.byID[id]
@@ -29,10 +29,10 @@ func (c *curveCache) get(id string) (*store.Curve, bool) {
 		return nil, false
 	}
 	c.order.MoveToFront(el)
-	return el.Value.(*store.Curve), true
+	return el.Value.(*lab.Curve), true
 }
 
-func (c *curveCache) put(cv *store.Curve) {
+func (c *curveCache) put(cv *lab.Curve) {
 	c.mu.Lock()
 	defer c.mu.Unlock()
 	if el, ok := c.byID[cv.ID]; ok {
@@ -44,7 +44,7 @@ func (c *curveCache) put(cv *store.Curve) {
 	for c.order.Len() > c.max {
 		last := c.order.Back()
 		c.order.Remove(last)
-		delete(c.byID, last.Value.(*store.Curve).ID)
+		delete(c.byID, last.Value.(*lab.Curve).ID)
 	}
 }
 

@@ -3,12 +3,12 @@ package api
 import (
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // curveOut renders a stored curve in the contract's shape. Numbers that do
 // not exist (no fit, a check not computed) are null, never 0 or NaN.
-func curveOut(c *store.Curve) oapi.Curve {
+func curveOut(c *lab.Curve) oapi.Curve {
 	r := c.Report
 	fitted := len(r.Coefficients) > 0
 	out := oapi.Curve{
@@ -134,7 +134,7 @@ func curveOut(c *store.Curve) oapi.Curve {
 	return out
 }
 
-func summaryOut(c *store.CurveSummary, failed []string) oapi.CurveSummary {
+func summaryOut(c *lab.CurveSummary, failed []string) oapi.CurveSummary {
 	return oapi.CurveSummary{
 		ID: uuidOf(c.ID), RunID: uuidOf(c.RunID), Method: c.Method, MethodRevision: c.MethodRevision,
 		Instrument: c.Instrument, Analyte: c.Analyte, Unit: c.Unit, Model: oapi.Model(c.Model),

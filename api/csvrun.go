@@ -15,21 +15,16 @@ import (
 	"curvekeeper/api/oapi"
 )
 
-// Limits of the CSV run body. The per-group and per-run numbers are those of
-// the JSON schema in openapi/openapi.yaml (Responses maxItems, RunRequest
-// standards and samples maxItems, Concentration, Response and Dilution
-// minimum/maximum, Identifier pattern); the line length is the CSV section of
-// POST /v1/runs.
+// Limits of the CSV run body. The per-group and per-run numbers are the JSON
+// schema's, said once as the fast paths' constants (fastResponsesMax,
+// fastStandardsMax, fastRunSamplesMax, fastConcentrationMax,
+// fastResponseAbsMax, fastDilutionMax, isIdentifier), which
+// validate_*_test.go checks against openapi/openapi.yaml; the line length is
+// the CSV section of POST /v1/runs.
 const (
-	csvMaxLineBytes     = 4096 // bytes of one line, not counting its LF or CRLF
-	csvMaxReadings      = 1000 // readings per standard level or per sample (Responses maxItems)
-	csvMaxLevels        = 500  // standard groups per run (RunRequest.standards maxItems)
-	csvMaxSamples       = 1000 // sample groups per run (RunRequest.samples maxItems)
-	csvMaxConcentration = 1.0e12
-	csvMaxAbsResponse   = 1.0e15
-	csvMaxDilution      = 1.0e6
-	csvMaxErrors        = 20 // breaches collected before decoding stops
-	csvMaxEcho          = 64 // bytes of an offending cell quoted back in a detail
+	csvMaxLineBytes = 4096 // bytes of one line, not counting its LF or CRLF
+	csvMaxErrors    = 20   // breaches collected before decoding stops
+	csvMaxEcho      = 64   // bytes of an offending cell quoted back in a detail
 
 	// csvMaxRows caps the data rows of one body. The schema's own limits
 	// allow 500 levels × 1000 readings + 1000 samples × 1000 readings =
@@ -39,9 +34,6 @@ const (
 	// (8 MiB by default) applies upstream as well.
 	csvMaxRows = 200_000
 )
-
-// csvIdentifier is the Identifier schema's pattern, compiled as written there.
-var csvIdentifier = regexp.MustCompile(`^[A-Za-z0-9][A-Za-z0-9._:-]{0,63}$`)
 
 // csvNumber is the number syntax of the CSV layout: '.' as decimal point, an
 // optional exponent; no hex, no thousands separators, no NaN or Inf.
@@ -389,7 +381,7 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 		if v == "" {
 			return "", failed(column, "required in a %s row", kind)
 		}
-		if !csvIdentifier.MatchString(v) {
+		if !isIdentifier(v) {
 			return "", failed(column, "%s is not an identifier (1 to 64 of A-Z a-z 0-9 . _ : -, starting with a letter or digit)", csvQuote(v))
 		}
 		return v, false
@@ -410,7 +402,7 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 			if failed(csvColConcentration, "required in a standard row") {
 				return true
 			}
-		} else if conc, err = parseCSVNumber(c, 0, csvMaxConcentration, false); err != nil {
+		} else if conc, err = parseCSVNumber(c, 0, fastConcentrationMax, false); err != nil {
 			if failed(csvColConcentration, "%v", err) {
 				return true
 			}
@@ -424,8 +416,8 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 		key := [2]string{analyte, level}
 		i, seen := d.stdIndex[key]
 		if !seen {
-			if len(d.standards) == csvMaxLevels {
-				return d.fail(n, csvColLevel, "more than %d standard levels in one run", csvMaxLevels)
+			if len(d.standards) == fastStandardsMax {
+				return d.fail(n, csvColLevel, "more than %d standard levels in one run", fastStandardsMax)
 			}
 			i = len(d.standards)
 			d.stdIndex[key] = i
@@ -436,8 +428,8 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 		if s.Concentration != conc {
 			return d.fail(n, csvColConcentration, "concentration %g differs from %g given on line %d for analyte %s level %s", conc, s.Concentration, d.stdLine[i], analyte, level)
 		}
-		if len(s.Responses) == csvMaxReadings {
-			return d.fail(n, csvColResponse, "more than %d readings for analyte %s level %s", csvMaxReadings, analyte, level)
+		if len(s.Responses) == fastResponsesMax {
+			return d.fail(n, csvColResponse, "more than %d readings for analyte %s level %s", fastResponsesMax, analyte, level)
 		}
 		s.Responses = append(s.Responses, resp)
 	case "sample":
@@ -462,7 +454,7 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 		}
 		var dil *float64
 		if c, _ := d.cell(fields, csvColDilution); c != "" {
-			v, err := parseCSVNumber(c, 0, csvMaxDilution, true)
+			v, err := parseCSVNumber(c, 0, fastDilutionMax, true)
 			if err != nil {
 				if failed(csvColDilution, "%v", err) {
 					return true
@@ -481,8 +473,8 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 		key := [2]string{analyte, id}
 		i, seen := d.smpIndex[key]
 		if !seen {
-			if len(d.samples) == csvMaxSamples {
-				return d.fail(n, csvColSampleID, "more than %d samples in one run", csvMaxSamples)
+			if len(d.samples) == fastRunSamplesMax {
+				return d.fail(n, csvColSampleID, "more than %d samples in one run", fastRunSamplesMax)
 			}
 			i = len(d.samples)
 			d.smpIndex[key] = i
@@ -494,8 +486,8 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 		if d.smpDil[i] != eff {
 			return d.fail(n, csvColDilution, "dilution %g differs from %g given on line %d for analyte %s sample %s (empty means 1)", eff, d.smpDil[i], d.smpLine[i], analyte, id)
 		}
-		if len(s.Responses) == csvMaxReadings {
-			return d.fail(n, csvColResponse, "more than %d readings for analyte %s sample %s", csvMaxReadings, analyte, id)
+		if len(s.Responses) == fastResponsesMax {
+			return d.fail(n, csvColResponse, "more than %d readings for analyte %s sample %s", fastResponsesMax, analyte, id)
 		}
 		s.Responses = append(s.Responses, resp)
 	default:
@@ -511,7 +503,7 @@ func (d *csvRunDecoder) response(n int, fields []string, v *float64, failed func
 	if c == "" {
 		return failed(csvColResponse, "required: one instrument reading")
 	}
-	r, err := parseCSVNumber(c, -csvMaxAbsResponse, csvMaxAbsResponse, false)
+	r, err := parseCSVNumber(c, -fastResponseAbsMax, fastResponseAbsMax, false)
 	if err != nil {
 		return failed(csvColResponse, "%v", err)
 	}

@@ -6,6 +6,7 @@ import (
 	"math"
 	"os"
 	"reflect"
+	"regexp"
 	"strings"
 	"testing"
 	"testing/iotest"
@@ -438,15 +439,15 @@ func FuzzDecodeCSVRun(f *testing.F) {
 			}
 			return
 		}
-		if len(std) == 0 || len(std) > csvMaxLevels || len(smp) > csvMaxSamples {
+		if len(std) == 0 || len(std) > fastStandardsMax || len(smp) > fastRunSamplesMax {
 			t.Fatalf("%d standards, %d samples", len(std), len(smp))
 		}
 		checkResponses := func(what string, rs []float64) {
-			if len(rs) == 0 || len(rs) > csvMaxReadings {
+			if len(rs) == 0 || len(rs) > fastResponsesMax {
 				t.Fatalf("%s: %d readings", what, len(rs))
 			}
 			for _, r := range rs {
-				if math.IsNaN(r) || r < -csvMaxAbsResponse || r > csvMaxAbsResponse {
+				if math.IsNaN(r) || r < -fastResponseAbsMax || r > fastResponseAbsMax {
 					t.Fatalf("%s: reading %v out of range", what, r)
 				}
 			}
@@ -457,7 +458,7 @@ func FuzzDecodeCSVRun(f *testing.F) {
 				t.Fatalf("standard identifiers %q %q", s.Analyte, s.Level)
 			}
 			c := s.Concentration
-			if math.IsNaN(c) || c < 0 || c > csvMaxConcentration {
+			if math.IsNaN(c) || c < 0 || c > fastConcentrationMax {
 				t.Fatalf("concentration %v out of range", c)
 			}
 			key := [3]string{"std", s.Analyte, s.Level}
@@ -471,7 +472,7 @@ func FuzzDecodeCSVRun(f *testing.F) {
 			if !csvIdentifier.MatchString(s.Analyte) || !csvIdentifier.MatchString(s.ID) {
 				t.Fatalf("sample identifiers %q %q", s.Analyte, s.ID)
 			}
-			if d := s.Dilution; d != nil && (math.IsNaN(*d) || *d <= 0 || *d > csvMaxDilution) {
+			if d := s.Dilution; d != nil && (math.IsNaN(*d) || *d <= 0 || *d > fastDilutionMax) {
 				t.Fatalf("dilution %v out of range", *d)
 			}
 			key := [3]string{"smp", s.Analyte, s.ID}
@@ -483,3 +484,7 @@ func FuzzDecodeCSVRun(f *testing.F) {
 		}
 	})
 }
+
+// csvIdentifier is the Identifier schema's pattern, compiled as written in
+// openapi/openapi.yaml, to check the decoder's output independently.
+var csvIdentifier = regexp.MustCompile(`^[A-Za-z0-9][A-Za-z0-9._:-]{0,63}$`)

@@ -24,7 +24,7 @@ import (
 
 	"curvekeeper/api"
 	"curvekeeper/calib"
-	"curvekeeper/store"
+	"curvekeeper/lab"
 	"curvekeeper/store/dbtest"
 )
 
@@ -41,23 +41,23 @@ func newFuzzServer(f *testing.F) *fuzzServer {
 	db := dbtest.NewDB(f)
 	ctx := context.Background()
 	srv, err := api.New(api.Config{BodyLimit: 256 << 10, RequestTimeout: 10 * time.Second, RateLimit: -1},
-		db, slog.New(slog.DiscardHandler))
+		lab.NewService(db), slog.New(slog.DiscardHandler))
 	if err != nil {
 		f.Fatal(err)
 	}
-	_, _, err = db.CreateMethod(ctx, store.MethodInput{
+	_, _, err = db.CreateMethod(ctx, lab.MethodInput{
 		Name: "nitrate-ic", Model: calib.Linear, Weighting: calib.WeightNone, Confidence: 0.95,
-		Analytes:   []store.Analyte{{Name: "nitrate", Unit: "mg/L"}, {Name: "nitrite", Unit: "mg/L"}},
+		Analytes:   []lab.Analyte{{Name: "nitrate", Unit: "mg/L"}, {Name: "nitrite", Unit: "mg/L"}},
 		Acceptance: calib.DefaultPolicy(),
 	}, "fuzz-setup")
 	if err != nil {
 		f.Fatal(err)
 	}
 	fs := &fuzzServer{h: srv.Handler()}
-	if _, fs.writer, err = db.CreateToken(ctx, "fuzz-writer", []string{store.ScopeRunsWrite}, "fuzz-setup"); err != nil {
+	if _, fs.writer, err = db.CreateToken(ctx, "fuzz-writer", []string{lab.ScopeRunsWrite}, "fuzz-setup"); err != nil {
 		f.Fatal(err)
 	}
-	if _, fs.reader, err = db.CreateToken(ctx, "fuzz-reader", []string{store.ScopeResultsRead}, "fuzz-setup"); err != nil {
+	if _, fs.reader, err = db.CreateToken(ctx, "fuzz-reader", []string{lab.ScopeResultsRead}, "fuzz-setup"); err != nil {
 		f.Fatal(err)
 	}
 	rec := fs.post(fuzzRunSeed, "/v1/runs", fs.writer)

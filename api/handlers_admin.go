@@ -8,14 +8,14 @@ import (
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // CreateMethod stores a method, or a new revision of it when it changed.
 func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestObject) (oapi.CreateMethodResponseObject, error) {
 	p := mustPrincipal(ctx)
 	b := req.Body
-	in := store.MethodInput{
+	in := lab.MethodInput{
 		Name:        string(b.Name),
 		Model:       calib.Model(b.Model),
 		Weighting:   calib.Weighting(b.Weighting),
@@ -38,12 +38,12 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 	seen := map[string]bool{}
 	for i, a := range b.Analytes {
 		if seen[string(a.Name)] {
-			return nil, store.FieldError(pointer("analytes", i, "name"), "analyte %q is listed twice", a.Name)
+			return nil, lab.FieldError(lab.Pointer("analytes", i, "name"), "analyte %q is listed twice", a.Name)
 		}
 		seen[string(a.Name)] = true
-		in.Analytes = append(in.Analytes, store.Analyte{Name: string(a.Name), Unit: string(a.Unit)})
+		in.Analytes = append(in.Analytes, lab.Analyte{Name: string(a.Name), Unit: string(a.Unit)})
 	}
-	m, created, err := s.db.CreateMethod(ctx, in, p.Actor())
+	m, created, err := s.lab.DefineMethod(ctx, p, in)
 	if err != nil {
 		return nil, err
 	}
@@ -56,7 +56,7 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 
 // ListMethods lists the latest revision of every method.
 func (s *Server) ListMethods(ctx context.Context, _ oapi.ListMethodsRequestObject) (oapi.ListMethodsResponseObject, error) {
-	ms, err := s.db.ListMethods(ctx)
+	ms, err := s.lab.ListMethods(ctx)
 	if err != nil {
 		return nil, err
 	}
@@ -70,13 +70,13 @@ func (s *Server) ListMethods(ctx context.Context, _ oapi.ListMethodsRequestObjec
 // GetMethod returns a method's latest revision, or the one asked for.
 func (s *Server) GetMethod(ctx context.Context, req oapi.GetMethodRequestObject) (oapi.GetMethodResponseObject, error) {
 	var (
-		m   *store.Method
+		m   *lab.Method
 		err error
 	)
 	if req.Params.Revision != nil {
-		m, err = s.db.GetMethodRevision(ctx, req.Name, *req.Params.Revision)
+		m, err = s.lab.GetMethodRevision(ctx, req.Name, *req.Params.Revision)
 	} else {
-		m, err = s.db.GetMethod(ctx, req.Name)
+		m, err = s.lab.GetMethod(ctx, req.Name)
 	}
 	if err != nil {
 		return nil, err
@@ -127,8 +127,8 @@ func policyFrom(a *oapi.AcceptanceInput) calib.Policy {
 
 // qcFrom reads the method's QC settings; zero values take the store's
 // defaults (verification tolerance ±20 %, US EPA SW-846 Method 8000D).
-func qcFrom(b *oapi.MethodRequest) store.QCPolicy {
-	var q store.QCPolicy
+func qcFrom(b *oapi.MethodRequest) lab.QCPolicy {
+	var q lab.QCPolicy
 	if b.Acceptance != nil && b.Acceptance.VerificationTolerancePct != nil {
 		q.VerificationTolerancePct = *b.Acceptance.VerificationTolerancePct
 	}
@@ -141,7 +141,7 @@ func qcFrom(b *oapi.MethodRequest) store.QCPolicy {
 	return q
 }
 
-func methodOut(m *store.Method) oapi.Method {
+func methodOut(m *lab.Method) oapi.Method {
 	pol := m.Acceptance
 	mandatory := make([]oapi.CheckName, 0, len(pol.Mandatory))
 	for _, c := range pol.Mandatory {
@@ -197,7 +197,7 @@ func (s *Server) CreateToken(ctx context.Context, req oapi.CreateTokenRequestObj
 			scopes = append(scopes, string(sc))
 		}
 	}
-	id, secret, err := s.db.CreateToken(ctx, string(req.Body.Name), scopes, p.Actor())
+	id, secret, err := s.lab.IssueToken(ctx, p, string(req.Body.Name), scopes)
 	if err != nil {
 		return nil, err
 	}
@@ -212,7 +212,7 @@ func (s *Server) CreateToken(ctx context.Context, req oapi.CreateTokenRequestObj
 // DeleteToken revokes a token; the next request with it is refused.
 func (s *Server) DeleteToken(ctx context.Context, req oapi.DeleteTokenRequestObject) (oapi.DeleteTokenResponseObject, error) {
 	p := mustPrincipal(ctx)
-	if err := s.db.RevokeToken(ctx, req.ID.String(), p.Actor()); err != nil {
+	if err := s.lab.RevokeToken(ctx, p, req.ID.String()); err != nil {
 		return nil, err
 	}
 	return oapi.DeleteToken204Response{}, nil
@@ -220,7 +220,7 @@ func (s *Server) DeleteToken(ctx context.Context, req oapi.DeleteTokenRequestObj
 
 // mustPrincipal returns the authenticated caller; authMiddleware guarantees
 // one on every /v1 route.
-func mustPrincipal(ctx context.Context) Principal {
+func mustPrincipal(ctx context.Context) lab.Principal {
 	p, ok := principalFrom(ctx)
 	if !ok {
 		panic(newProblem(http.StatusUnauthorized, "no principal on an authenticated route"))

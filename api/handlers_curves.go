@@ -4,21 +4,18 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
-	"errors"
 	"fmt"
-	"net/http"
-	"strings"
 
 	"curvekeeper/api/curveplot"
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // ListCurves returns curve history newest first, one keyset page at a time.
 func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObject) (oapi.ListCurvesResponseObject, error) {
 	q := req.Params
-	f := store.CurveFilter{
+	f := lab.CurveFilter{
 		Instrument: deref(q.Instrument), Analyte: deref(q.Analyte), Method: deref(q.Method), Cursor: deref(q.Cursor),
 	}
 	if q.Status != nil {
@@ -38,10 +35,6 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 	}
 	page, err := s.reads(ctx).ListCurves(ctx, f) // history tolerates the replicas' lag
 	if err != nil {
-		var se *store.Error
-		if errors.As(err, &se) && se.Kind == store.KindInvalid && strings.Contains(strings.ToLower(se.Field+se.Message), "cursor") {
-			return nil, newProblem(http.StatusBadRequest, se.Message, ProblemField{Pointer: "query:cursor", Detail: se.Message})
-		}
 		return nil, err
 	}
 	out := oapi.ListCurves200JSONResponse{Curves: make([]oapi.CurveSummary, 0, len(page.Curves)), Cautions: calib.Cautions()}
@@ -57,11 +50,11 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 // curve returns a stored curve, from the cache when it is there. The cached
 // copy's fit is exact (fits are immutable); its review status may be old, so
 // callers that report the status use freshCurve.
-func (s *Server) curve(ctx context.Context, id string) (*store.Curve, error) {
+func (s *Server) curve(ctx context.Context, id string) (*lab.Curve, error) {
 	if c, ok := s.curves.get(id); ok {
 		return c, nil
 	}
-	c, err := s.db.GetCurve(ctx, id)
+	c, err := s.lab.GetCurve(ctx, id)
 	if err != nil {
 		return nil, err
 	}
@@ -70,8 +63,8 @@ func (s *Server) curve(ctx context.Context, id string) (*store.Curve, error) {
 }
 
 // freshCurve reads a curve from the database and refreshes the cache.
-func (s *Server) freshCurve(ctx context.Context, id string) (*store.Curve, error) {
-	c, err := s.db.GetCurve(ctx, id)
+func (s *Server) freshCurve(ctx context.Context, id string) (*lab.Curve, error) {
+	c, err := s.lab.GetCurve(ctx, id)
 	if err != nil {
 		return nil, err
 	}
@@ -111,14 +104,11 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 	// The prediction route read the status with its token (authMiddleware).
 	status, ok := prefetchedStatus(ctx, id)
 	if !ok {
-		if status, err = s.db.CurveStatus(ctx, id); err != nil {
+		if status, err = s.lab.CurveStatus(ctx, id); err != nil {
 			return oapi.PredictionResponse{}, err
 		}
 	}
 	r := c.Report
-	if len(r.Coefficients) == 0 {
-		return oapi.PredictionResponse{}, store.Errorf(store.KindConflict, "curve %s could not be fitted (see its checks), so it cannot quantify samples", id)
-	}
 	conf := r.Confidence
 	if confidence != nil {
 		conf = *confidence
@@ -128,20 +118,16 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		CurveStatus: oapi.CurveStatus(status), CurveVerdict: oapi.Verdict(r.Verdict),
 		Cautions: calib.Cautions(), Results: make([]oapi.PredictionResult, 0, len(samples)),
 	}
-	for i, sm := range samples {
-		d := 1.0
-		if sm.Dilution != nil {
-			d = *sm.Dilution
+	err = lab.Predict(c, conf, len(samples), func(i int) ([]float64, float64) {
+		if d := samples[i].Dilution; d != nil {
+			return samples[i].Responses, *d
 		}
-		pr, err := r.Predict(sm.Responses, d, conf)
-		if err != nil {
-			var ie *calib.InputError
-			if errors.As(err, &ie) {
-				return oapi.PredictionResponse{}, store.FieldError(pointer("samples", i, ie.Field), "%s", ie.Reason)
-			}
-			return oapi.PredictionResponse{}, fmt.Errorf("api: predict sample %d: %w", i, err)
-		}
-		out.Results = append(out.Results, predictionOut(string(sm.ID), pr))
+		return samples[i].Responses, 1
+	}, func(i int, pr calib.Prediction) {
+		out.Results = append(out.Results, predictionOut(string(samples[i].ID), pr))
+	})
+	if err != nil {
+		return oapi.PredictionResponse{}, err
 	}
 	return out, nil
 }
@@ -167,11 +153,7 @@ func (s *Server) ReviewCurve(ctx context.Context, req oapi.ReviewCurveRequestObj
 	p := mustPrincipal(ctx)
 	id := req.ID.String()
 	reason := deref(req.Body.Reason)
-	if _, err := s.db.ReviewCurve(ctx, id, string(req.Body.Decision), reason, p.Actor()); err != nil {
-		var se *store.Error
-		if errors.As(err, &se) && se.Kind == store.KindInvalid && se.Field == "" {
-			return nil, store.FieldError("/reason", "%s", se.Message)
-		}
+	if _, err := s.lab.Review(ctx, p, id, string(req.Body.Decision), reason); err != nil {
 		return nil, err
 	}
 	s.curves.drop(id)
@@ -184,7 +166,7 @@ func (s *Server) ReviewCurve(ctx context.Context, req oapi.ReviewCurveRequestObj
 
 // GetCurveAudit returns the audit trail of a curve and of its run.
 func (s *Server) GetCurveAudit(ctx context.Context, req oapi.GetCurveAuditRequestObject) (oapi.GetCurveAuditResponseObject, error) {
-	events, err := s.db.ListAudit(ctx, req.ID.String())
+	events, err := s.lab.ListAudit(ctx, req.ID.String())
 	if err != nil {
 		return nil, err
 	}
@@ -197,7 +179,7 @@ func (s *Server) GetCurveAudit(ctx context.Context, req oapi.GetCurveAuditReques
 
 // auditText renders an audit event's detail for people: the entity and its
 // recorded facts as compact JSON.
-func auditText(e store.AuditEvent) string {
+func auditText(e lab.AuditEvent) string {
 	var compact bytes.Buffer
 	if len(e.Detail) > 0 && json.Compact(&compact, e.Detail) == nil && compact.String() != "{}" {
 		return e.EntityType + " " + e.EntityID + ": " + compact.String()

@@ -24,20 +24,20 @@ func (s *Server) GetHealthz(ctx context.Context, _ oapi.GetHealthzRequestObject)
 func (s *Server) GetReadyz(ctx context.Context, _ oapi.GetReadyzRequestObject) (oapi.GetReadyzResponseObject, error) {
 	ctx, cancel := context.WithTimeout(ctx, 2*time.Second)
 	defer cancel()
-	if err := s.db.Ping(ctx); err != nil {
+	if err := s.lab.Ping(ctx); err != nil {
 		s.log.Warn("readyz: database unreachable", "error", err)
 		return nil, newProblem(http.StatusServiceUnavailable, "the database cannot be reached")
 	}
-	if err := s.db.CheckSchema(ctx); err != nil {
+	if err := s.lab.CheckSchema(ctx); err != nil {
 		return nil, newProblem(http.StatusServiceUnavailable, err.Error())
 	}
 	out := oapi.GetReadyz200JSONResponse{Status: oapi.ReadinessReady, Mode: oapi.ModeReadWrite}
-	if s.db.ReadOnly() {
+	if s.topo.ReadOnly() {
 		out.Mode = oapi.ModeReadOnly
 	}
-	if s.db.HasReplicas() {
-		reps := make([]oapi.ReplicaReadiness, 0, len(s.db.Replicas()))
-		for i, r := range s.db.Replicas() {
+	if s.topo.HasReplicas() {
+		reps := make([]oapi.ReplicaReadiness, 0, len(s.topo.Replicas()))
+		for i, r := range s.topo.Replicas() {
 			rr := oapi.ReplicaReadiness{Replica: i + 1, InUse: r.InUse}
 			if r.Lag >= 0 {
 				lag := r.Lag.Seconds()

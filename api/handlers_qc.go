@@ -2,14 +2,11 @@ package api
 
 import (
 	"context"
-	"errors"
-	"fmt"
-	"net/http"
 	"time"
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // CreateVerification records a verification standard (ICV/CCV) against a
@@ -17,30 +14,20 @@ import (
 func (s *Server) CreateVerification(ctx context.Context, req oapi.CreateVerificationRequestObject) (oapi.CreateVerificationResponseObject, error) {
 	p := mustPrincipal(ctx)
 	b := req.Body
-	v, err := s.db.CreateVerification(ctx, store.VerificationInput{
+	v, err := s.lab.Verify(ctx, p, lab.VerificationInput{
 		CurveID: req.ID.String(), Kind: string(b.Kind), Level: string(b.Level), Concentration: b.Concentration,
-		Responses: b.Responses, At: b.At, Actor: p.Actor(),
+		Responses: b.Responses, At: b.At,
 	})
 	if err != nil {
-		return nil, conflictOnPath(err)
+		return nil, err
 	}
 	return oapi.CreateVerification201JSONResponse{Verification: verificationOut(v), ResultsChanged: v.ResultsChanged,
 		Cautions: calib.Cautions()}, nil
 }
 
-// conflictOnPath names the curve in the path as the field of a state
-// conflict: the rule is about the curve, not about the body.
-func conflictOnPath(err error) error {
-	var se *store.Error
-	if errors.As(err, &se) && se.Kind == store.KindConflict {
-		return newProblem(http.StatusConflict, se.Message, ProblemField{Pointer: "path:id", Detail: se.Message})
-	}
-	return err
-}
-
 // ListVerifications lists the verification standards of a curve.
 func (s *Server) ListVerifications(ctx context.Context, req oapi.ListVerificationsRequestObject) (oapi.ListVerificationsResponseObject, error) {
-	vs, err := s.db.ListVerifications(ctx, req.ID.String())
+	vs, err := s.lab.ListVerifications(ctx, req.ID.String())
 	if err != nil {
 		return nil, err
 	}
@@ -51,7 +38,7 @@ func (s *Server) ListVerifications(ctx context.Context, req oapi.ListVerificatio
 	return out, nil
 }
 
-func verificationOut(v *store.Verification) oapi.Verification {
+func verificationOut(v *lab.Verification) oapi.Verification {
 	return oapi.Verification{ID: uuidOf(v.ID), CurveID: uuidOf(v.CurveID), Kind: oapi.VerificationKind(v.Kind),
 		Level: v.Level, Concentration: v.Concentration, Responses: nonNil(v.Responses), Found: v.Found,
 		RecoveryPct: v.RecoveryPct, DifferencePct: v.DifferencePct, LimitPct: v.LimitPct, Passed: v.Passed,
@@ -59,7 +46,7 @@ func verificationOut(v *store.Verification) oapi.Verification {
 }
 
 // CreateExclusion refits a curve without some of its readings as a new
-// revision, under the exclusion rules (store.PlanExclusion). The plan and
+// revision, under the exclusion rules (lab.PlanExclusion). The plan and
 // the fit are computed before the transaction opens; the original's readings
 // are immutable, so they stay valid.
 func (s *Server) CreateExclusion(ctx context.Context, req oapi.CreateExclusionRequestObject) (oapi.CreateExclusionResponseObject, error) {
@@ -68,13 +55,9 @@ func (s *Server) CreateExclusion(ctx context.Context, req oapi.CreateExclusionRe
 	if err != nil {
 		return nil, err
 	}
-	m, err := s.db.GetMethodRevision(ctx, c.Method, c.MethodRevision)
-	if err != nil {
-		return nil, err
-	}
-	pts := make([]store.ExcludedPoint, 0, len(req.Body.Points))
+	pts := make([]lab.ExcludedPoint, 0, len(req.Body.Points))
 	for _, x := range req.Body.Points {
-		e := store.ExcludedPoint{Level: string(x.Level)}
+		e := lab.ExcludedPoint{Level: string(x.Level)}
 		if x.Replicate != nil {
 			e.Replicate = *x.Replicate
 		}
@@ -84,23 +67,9 @@ func (s *Server) CreateExclusion(ctx context.Context, req oapi.CreateExclusionRe
 	if req.Body.RangeReason != nil {
 		rangeReason = string(*req.Body.RangeReason)
 	}
-	fitPts, excluded, err := store.PlanExclusion(c.Report.Points, pts, rangeReason, m.Acceptance.MinLevels)
+	revID, err := s.lab.Exclude(ctx, p, c, pts, string(req.Body.Reason), rangeReason)
 	if err != nil {
 		return nil, err
-	}
-	opts := m.Options()
-	rep, err := calib.Fit(fitPts, opts)
-	if err != nil {
-		var ie *calib.InputError
-		if !errors.As(err, &ie) {
-			return nil, fmt.Errorf("api: refit curve %s: %w", c.ID, err)
-		}
-		rep = calib.FailedReport(fitPts, opts, err)
-	}
-	revID, err := s.db.CreateRevision(ctx, store.RevisionInput{OriginalID: c.ID, Report: rep, Excluded: excluded,
-		Reason: string(req.Body.Reason), RangeReason: rangeReason, Actor: p.Actor()})
-	if err != nil {
-		return nil, conflictOnPath(err)
 	}
 	rc, err := s.freshCurve(ctx, revID)
 	if err != nil {
@@ -114,12 +83,12 @@ func (s *Server) CreateExclusion(ctx context.Context, req oapi.CreateExclusionRe
 }
 
 // curveWithExclusion renders a curve and, for a revision, why it was made.
-func (s *Server) curveWithExclusion(ctx context.Context, c *store.Curve) (oapi.Curve, error) {
+func (s *Server) curveWithExclusion(ctx context.Context, c *lab.Curve) (oapi.Curve, error) {
 	out := curveOut(c)
 	if c.RevisionOf == "" {
 		return out, nil
 	}
-	e, err := s.db.GetExclusion(ctx, c.ID)
+	e, err := s.lab.GetExclusion(ctx, c.ID)
 	if err != nil {
 		return oapi.Curve{}, err
 	}
@@ -145,7 +114,7 @@ func (s *Server) GetCurveInForce(ctx context.Context, req oapi.GetCurveInForceRe
 	if req.Params.At != nil {
 		at = req.Params.At.UTC()
 	}
-	in, err := s.db.CurveInForce(ctx, req.Instrument, req.Params.Analyte, at)
+	in, err := s.lab.CurveInForce(ctx, req.Instrument, req.Params.Analyte, at)
 	if err != nil {
 		return nil, err
 	}
@@ -165,7 +134,7 @@ func (s *Server) CreateInstrumentPredictions(ctx context.Context, req oapi.Creat
 	if req.Body.At != nil {
 		at = req.Body.At.UTC()
 	}
-	in, err := s.db.CurveInForce(ctx, req.Instrument, string(req.Body.Analyte), at)
+	in, err := s.lab.CurveInForce(ctx, req.Instrument, string(req.Body.Analyte), at)
 	if err != nil {
 		return nil, err
 	}

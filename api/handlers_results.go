@@ -7,16 +7,16 @@ import (
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // CreateRunSamples stores samples measured after their run and quantifies
 // each against the current curve of its analyte, in one transaction.
 func (s *Server) CreateRunSamples(ctx context.Context, req oapi.CreateRunSamplesRequestObject) (oapi.CreateRunSamplesResponseObject, error) {
 	p := mustPrincipal(ctx)
-	samples := make([]store.Sample, 0, len(req.Body.Samples))
+	samples := make([]lab.Sample, 0, len(req.Body.Samples))
 	for _, sm := range req.Body.Samples {
-		in := store.Sample{ID: string(sm.ID), Analyte: string(sm.Analyte), Responses: sm.Responses, Dilution: 1}
+		in := lab.Sample{ID: string(sm.ID), Analyte: string(sm.Analyte), Responses: sm.Responses, Dilution: 1}
 		if sm.Dilution != nil {
 			in.Dilution = *sm.Dilution
 		}
@@ -26,7 +26,7 @@ func (s *Server) CreateRunSamples(ctx context.Context, req oapi.CreateRunSamples
 		}
 		samples = append(samples, in)
 	}
-	results, err := s.db.AddSamples(ctx, req.ID.String(), samples, p.Actor())
+	results, err := s.lab.AddSamples(ctx, p, req.ID.String(), samples)
 	if err != nil {
 		return nil, err
 	}
@@ -35,7 +35,7 @@ func (s *Server) CreateRunSamples(ctx context.Context, req oapi.CreateRunSamples
 
 // GetRunResults returns every result of a run's samples.
 func (s *Server) GetRunResults(ctx context.Context, req oapi.GetRunResultsRequestObject) (oapi.GetRunResultsResponseObject, error) {
-	results, err := s.db.RunResults(ctx, req.ID.String())
+	results, err := s.lab.RunResults(ctx, req.ID.String())
 	if err != nil {
 		return nil, err
 	}
@@ -44,10 +44,10 @@ func (s *Server) GetRunResults(ctx context.Context, req oapi.GetRunResultsReques
 
 // GetSampleResults returns every result for a LIMS sample id.
 func (s *Server) GetSampleResults(ctx context.Context, req oapi.GetSampleResultsRequestObject) (oapi.GetSampleResultsResponseObject, error) {
-	results, err := s.db.SampleResults(ctx, req.SampleID)
+	results, err := s.lab.SampleResults(ctx, req.SampleID)
 	if err != nil {
-		var se *store.Error
-		if errors.As(err, &se) && se.Kind == store.KindNotFound {
+		var se *lab.Error
+		if errors.As(err, &se) && se.Kind == lab.KindNotFound {
 			return nil, newProblem(http.StatusNotFound, se.Message, ProblemField{Pointer: "path:sample_id", Detail: se.Message})
 		}
 		return nil, err
@@ -62,12 +62,8 @@ func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEvents
 	if req.Params.Limit != nil {
 		limit = *req.Params.Limit
 	}
-	page, err := s.db.ResultFeed(ctx, deref(req.Params.Since), limit)
+	page, err := s.lab.ResultFeed(ctx, deref(req.Params.Since), limit)
 	if err != nil {
-		var se *store.Error
-		if errors.As(err, &se) && se.Kind == store.KindInvalid && se.Field == "/since" {
-			return nil, newProblem(http.StatusBadRequest, se.Message, ProblemField{Pointer: "query:since", Detail: se.Message})
-		}
 		return nil, err
 	}
 	out := oapi.ListResultEvents200JSONResponse{Events: make([]oapi.ResultEvent, 0, len(page.Events)),
@@ -85,7 +81,7 @@ func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEvents
 	return out, nil
 }
 
-func resultsOut(rs []store.Result) []oapi.SampleResult {
+func resultsOut(rs []lab.Result) []oapi.SampleResult {
 	out := make([]oapi.SampleResult, 0, len(rs))
 	for _, r := range rs {
 		out = append(out, oapi.SampleResult{

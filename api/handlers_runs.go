@@ -14,7 +14,7 @@ import (
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // CreateRun stores a run posted by an instrument (JSON or CSV) and fits one
@@ -27,58 +27,19 @@ func (s *Server) CreateRun(ctx context.Context, req oapi.CreateRunRequestObject)
 	if err != nil {
 		return nil, err
 	}
-	key := ""
+	in := runInput(body)
+	in.SourceFormat, in.RequestHash = format, hash
 	if req.Params.IdempotencyKey != nil {
-		key = *req.Params.IdempotencyKey
+		in.IdempotencyKey = *req.Params.IdempotencyKey
 	}
-	// One round trip for the idempotency key, the method's latest revision
-	// and the drift history of every analyte the run names.
-	reads, err := s.db.ReadForRun(ctx, store.RunReadsQuery{TokenID: p.TokenID, Key: key, RequestHash: hash,
-		Method: string(body.Method), Instrument: string(body.Instrument), Analytes: runAnalytes(body),
-		Before: body.AcquiredAt, Limit: driftHistory})
-	if err != nil {
-		if store.KindOf(err) == store.KindNotFound {
-			return nil, store.FieldError("/method", "no method is called %q; an administrator defines methods with POST /v1/methods", body.Method)
-		}
-		return nil, idempotencyError(err)
-	}
-	if reads.Replay != nil {
-		return runCreatedOut(reads.Replay), nil
-	}
-	m := reads.Method
-	in, curves, err := s.prepareRun(m, body)
+	created, err := s.lab.Ingest(ctx, p, in)
 	if err != nil {
 		return nil, err
-	}
-	addDriftChecks(m, reads.Slopes, curves)
-	in.SourceFormat, in.RequestHash, in.IdempotencyKey = format, hash, key
-	in.TokenID, in.Actor = p.TokenID, p.Actor()
-	created, err := s.db.CreateRun(ctx, in, curves)
-	if err != nil {
-		return nil, idempotencyError(err)
 	}
 	return runCreatedOut(created), nil
 }
 
-// runAnalytes lists the analyte of every standard of a run (with repeats).
-func runAnalytes(body *oapi.RunRequest) []string {
-	out := make([]string, 0, len(body.Standards))
-	for _, st := range body.Standards {
-		out = append(out, string(st.Analyte))
-	}
-	return out
-}
-
-// idempotencyError names the header when a key was reused with another body.
-func idempotencyError(err error) error {
-	var se *store.Error
-	if errors.As(err, &se) && se.Kind == store.KindInvalid && se.Field == "/headers/Idempotency-Key" {
-		return &store.Error{Kind: store.KindInvalid, Field: "header:Idempotency-Key", Message: se.Message, Err: se.Err}
-	}
-	return err
-}
-
-func runCreatedOut(c *store.RunCreated) oapi.CreateRun201JSONResponse {
+func runCreatedOut(c *lab.RunCreated) oapi.CreateRun201JSONResponse {
 	out := oapi.CreateRun201JSONResponse{
 		Body:    oapi.RunCreated{ID: uuidOf(c.ID), Cautions: calib.Cautions(), Curves: make([]oapi.RunCurve, 0, len(c.Curves))},
 		Headers: oapi.CreateRun201ResponseHeaders{Location: "/v1/runs/" + c.ID, IdempotencyReplayed: c.Replayed},
@@ -106,7 +67,7 @@ func runBody(req oapi.CreateRunRequestObject) (*oapi.RunRequest, string, []byte,
 		}
 		h.Write([]byte("json\n"))
 		h.Write(canon)
-		return req.JSONBody, store.FormatJSON, h.Sum(nil), nil
+		return req.JSONBody, lab.FormatJSON, h.Sum(nil), nil
 	}
 	if req.Body == nil {
 		return nil, "", nil, newProblem(http.StatusUnsupportedMediaType, "send the run as application/json or text/csv")
@@ -146,7 +107,7 @@ func runBody(req oapi.CreateRunRequestObject) (*oapi.RunRequest, string, []byte,
 		h.Write([]byte(strconv.Quote(part)))
 	}
 	h.Write(raw)
-	return run, store.FormatCSV, h.Sum(nil), nil
+	return run, lab.FormatCSV, h.Sum(nil), nil
 }
 
 // csvProblem lists every breach of the CSV layout by line and column.
@@ -166,92 +127,35 @@ func csvProblem(err error) error {
 	return newProblem(http.StatusUnprocessableEntity, detail, fields...)
 }
 
-// prepareRun checks the run against its method and fits one curve per
-// analyte (CPU work, done before the transaction opens).
-func (s *Server) prepareRun(m *store.Method, body *oapi.RunRequest) (store.RunInput, []store.CurveInput, error) {
-	in := store.RunInput{
-		Method:         m.Name,
-		MethodRevision: m.Revision,
-		Instrument:     string(body.Instrument),
-		AcquiredAt:     body.AcquiredAt,
-		Operator:       deref(body.Operator),
+// runInput is the run as the lab takes it.
+func runInput(body *oapi.RunRequest) lab.RunInput {
+	in := lab.RunInput{
+		Method:     string(body.Method),
+		Instrument: string(body.Instrument),
+		AcquiredAt: body.AcquiredAt,
+		Operator:   deref(body.Operator),
+		Standards:  make([]lab.Standard, 0, len(body.Standards)),
 	}
-	type levelKey struct{ analyte, level string }
-	type concKey struct {
-		analyte string
-		conc    float64
-	}
-	seen := map[levelKey]bool{}
-	concAt := map[concKey]string{} // level label holding each concentration
-	var order []string
-	points := map[string][]calib.Point{}
-	for i, st := range body.Standards {
-		a := string(st.Analyte)
-		if _, ok := m.Analyte(a); !ok {
-			return in, nil, store.FieldError(pointer("standards", i, "analyte"), "method %s does not list the analyte %q", m.Name, a)
-		}
-		k := levelKey{a, string(st.Level)}
-		if seen[k] {
-			return in, nil, store.FieldError(pointer("standards", i, "level"), "level %q of %s appears twice; send replicates as several responses of one standard", st.Level, a)
-		}
-		seen[k] = true
-		ck := concKey{a, st.Concentration}
-		if other, dup := concAt[ck]; dup {
-			return in, nil, store.FieldError(pointer("standards", i, "concentration"), "levels %q and %q of %s share the concentration %v; send replicates as several responses of one standard", other, st.Level, a, st.Concentration)
-		}
-		concAt[ck] = string(st.Level)
-		if _, ok := points[a]; !ok {
-			order = append(order, a)
-		}
-		for _, y := range st.Responses {
-			points[a] = append(points[a], calib.Point{Level: string(st.Level), X: st.Concentration, Y: y})
-		}
-		in.Standards = append(in.Standards, store.Standard{Analyte: a, Level: string(st.Level),
+	for _, st := range body.Standards {
+		in.Standards = append(in.Standards, lab.Standard{Analyte: string(st.Analyte), Level: string(st.Level),
 			Concentration: st.Concentration, Responses: st.Responses})
 	}
 	if body.Samples != nil {
-		type sampleKey struct{ analyte, id string }
-		seenSample := map[sampleKey]bool{}
-		for i, sm := range *body.Samples {
-			a := string(sm.Analyte)
-			sk := sampleKey{a, string(sm.ID)}
-			if seenSample[sk] {
-				return in, nil, store.FieldError(pointer("samples", i, "id"), "sample %q of %s appears twice; send replicates as several responses of one sample", sm.ID, a)
-			}
-			seenSample[sk] = true
-			if _, ok := m.Analyte(a); !ok {
-				return in, nil, store.FieldError(pointer("samples", i, "analyte"), "method %s does not list the analyte %q", m.Name, a)
-			}
-			if _, ok := points[a]; !ok {
-				return in, nil, store.FieldError(pointer("samples", i, "analyte"), "the run has no standards for %q to quantify this sample against", a)
-			}
+		in.Samples = make([]lab.Sample, 0, len(*body.Samples))
+		for _, sm := range *body.Samples {
 			d := 1.0
 			if sm.Dilution != nil {
 				d = *sm.Dilution
 			}
-			in.Samples = append(in.Samples, store.Sample{ID: string(sm.ID), Analyte: a, Responses: sm.Responses, Dilution: d})
+			in.Samples = append(in.Samples, lab.Sample{ID: string(sm.ID), Analyte: string(sm.Analyte), Responses: sm.Responses, Dilution: d})
 		}
 	}
-	opts := m.Options()
-	curves := make([]store.CurveInput, 0, len(order))
-	for _, a := range order {
-		an, _ := m.Analyte(a)
-		rep, err := calib.Fit(points[a], opts)
-		if err != nil {
-			var ie *calib.InputError
-			if !errors.As(err, &ie) {
-				return in, nil, fmt.Errorf("api: fit %s: %w", a, err)
-			}
-			rep = calib.FailedReport(points[a], opts, err)
-		}
-		curves = append(curves, store.CurveInput{Analyte: a, Unit: an.Unit, Report: rep})
-	}
-	return in, curves, nil
+	return in
 }
 
 // GetRun returns a run as stored.
 func (s *Server) GetRun(ctx context.Context, req oapi.GetRunRequestObject) (oapi.GetRunResponseObject, error) {
-	r, err := s.db.GetRun(ctx, req.ID.String())
+	r, err := s.lab.GetRun(ctx, req.ID.String())
 	if err != nil {
 		return nil, err
 	}

@@ -10,7 +10,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/collectors"
 
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // metrics holds the server's Prometheus collectors, on a registry of its own
@@ -36,7 +36,7 @@ type seriesPair struct {
 	duration prometheus.Observer
 }
 
-func newMetrics(db *store.DB) *metrics {
+func newMetrics(db lab.Reader) *metrics {
 	m := &metrics{
 		registry: prometheus.NewRegistry(),
 		requests: prometheus.NewCounterVec(prometheus.CounterOpts{
@@ -49,17 +49,17 @@ func newMetrics(db *store.DB) *metrics {
 			Buckets: []float64{.0005, .001, .0025, .005, .01, .025, .05, .1, .25, .5, 1, 2.5, 5, 10},
 		}, []string{"method", "route", "status"}),
 	}
-	writes := func(name, help string, v func(store.RunWriteStats) int64) prometheus.Collector {
+	writes := func(name, help string, v func(lab.RunWriteStats) int64) prometheus.Collector {
 		return prometheus.NewCounterFunc(prometheus.CounterOpts{Name: name, Help: help},
 			func() float64 { return float64(v(db.RunWriteStats())) })
 	}
 	m.registry.MustRegister(m.requests, m.duration,
 		writes("curvekeeper_run_write_groups_total", "Groups of runs written in one transaction.",
-			func(s store.RunWriteStats) int64 { return s.Groups }),
+			func(s lab.RunWriteStats) int64 { return s.Groups }),
 		writes("curvekeeper_run_writes_grouped_total", "Runs written in a group.",
-			func(s store.RunWriteStats) int64 { return s.Grouped }),
+			func(s lab.RunWriteStats) int64 { return s.Grouped }),
 		writes("curvekeeper_run_writes_alone_total", "Runs written alone after their group failed (an idempotency key used before, a refused run in the group).",
-			func(s store.RunWriteStats) int64 { return s.Alone }),
+			func(s lab.RunWriteStats) int64 { return s.Alone }),
 		collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
 	return m
 }

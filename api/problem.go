@@ -6,10 +6,12 @@ import (
 	"log/slog"
 	"net/http"
 	"strconv"
+	"strings"
 
 	"github.com/labstack/echo/v4"
 
-	"curvekeeper/store"
+	"curvekeeper/api/qaui"
+	"curvekeeper/lab"
 )
 
 // Problem is an RFC 9457 problem details object.
@@ -51,12 +53,12 @@ var problemTypes = map[int][2]string{
 }
 
 // kindStatus is the one table that maps error kinds to HTTP status.
-var kindStatus = map[store.Kind]int{
-	store.KindInternal:    http.StatusInternalServerError,
-	store.KindInvalid:     http.StatusUnprocessableEntity,
-	store.KindNotFound:    http.StatusNotFound,
-	store.KindConflict:    http.StatusConflict,
-	store.KindUnavailable: http.StatusServiceUnavailable,
+var kindStatus = map[lab.Kind]int{
+	lab.KindInternal:    http.StatusInternalServerError,
+	lab.KindInvalid:     http.StatusUnprocessableEntity,
+	lab.KindNotFound:    http.StatusNotFound,
+	lab.KindConflict:    http.StatusConflict,
+	lab.KindUnavailable: http.StatusServiceUnavailable,
 }
 
 // StatusOf returns the HTTP status for err.
@@ -69,7 +71,32 @@ func StatusOf(err error) int {
 	if errors.As(err, &pe) {
 		return pe.p.Status
 	}
-	return kindStatus[store.KindOf(err)]
+	var le *lab.Error
+	if errors.As(err, &le) {
+		return statusOfKind(le.Kind, le.In)
+	}
+	return http.StatusInternalServerError
+}
+
+// statusOfKind is kindStatus, but for one case: an invalid query parameter
+// is a malformed request (400), as the spec's validator answers for one.
+func statusOfKind(k lab.Kind, in lab.Place) int {
+	if k == lab.KindInvalid && in == lab.InQuery {
+		return http.StatusBadRequest
+	}
+	return kindStatus[k]
+}
+
+// placePrefix names where a parameter was given in a problem's pointer.
+var placePrefix = map[lab.Place]string{lab.InQuery: "query:", lab.InPath: "path:", lab.InHeader: "header:"}
+
+// pointerOf is the problem pointer of a field given in place in: the JSON
+// pointer for the body, "query:name" and the like for a parameter.
+func pointerOf(in lab.Place, field string) string {
+	if p, ok := placePrefix[in]; ok {
+		return p + strings.TrimPrefix(field, "/")
+	}
+	return field
 }
 
 // problemError carries a ready problem through Echo's error path.
@@ -108,14 +135,14 @@ func problemFor(err error) Problem {
 		}
 		return newProblem(http.StatusInternalServerError, "internal error").p
 	}
-	var se *store.Error
+	var se *lab.Error
 	if errors.As(err, &se) {
 		var fields []ProblemField
 		for _, f := range se.Fields {
-			fields = append(fields, ProblemField{Pointer: f.Field, Detail: f.Message})
+			fields = append(fields, ProblemField{Pointer: pointerOf(se.In, f.Field), Detail: f.Message})
 		}
 		if len(fields) == 0 && se.Field != "" {
-			fields = []ProblemField{{Pointer: se.Field, Detail: se.Message}}
+			fields = []ProblemField{{Pointer: pointerOf(se.In, se.Field), Detail: se.Message}}
 		}
 		return newProblem(status, se.Message, fields...).p
 	}
@@ -145,8 +172,8 @@ func (s *Server) errorHandler(err error, c echo.Context) {
 	if c.Response().Committed {
 		return
 	}
-	if isUIPath(c.Request().URL.Path) {
-		if uerr := s.uiFail(c, err); uerr != nil {
+	if qaui.IsPath(c.Request().URL.Path) {
+		if uerr := s.ui.Fail(c, err); uerr != nil {
 			s.log.Error("render error page", "request_id", requestID(c), "error", uerr)
 		}
 		return

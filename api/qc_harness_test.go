@@ -20,6 +20,7 @@ import (
 
 	"curvekeeper/api"
 	"curvekeeper/api/apitest"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
@@ -37,7 +38,7 @@ func newQCEnv(t *testing.T) *qcEnv {
 	t.Helper()
 	db := dbtest.NewDB(t)
 	var logs bytes.Buffer
-	s, err := api.New(api.Config{}, db, slog.New(slog.NewTextHandler(&logs, nil)))
+	s, err := api.New(api.Config{}, lab.NewService(db), slog.New(slog.NewTextHandler(&logs, nil)))
 	if err != nil {
 		t.Fatalf("api.New: %v", err)
 	}
@@ -48,7 +49,7 @@ func newQCEnv(t *testing.T) *qcEnv {
 			t.Logf("server log:\n%s", logs.String())
 		}
 	})
-	if _, _, err := db.EnsureToken(context.Background(), "qc-admin", qcAdminSecret, []string{store.ScopeAdmin}); err != nil {
+	if _, _, err := db.EnsureToken(context.Background(), "qc-admin", qcAdminSecret, []string{lab.ScopeAdmin}); err != nil {
 		t.Fatalf("EnsureToken: %v", err)
 	}
 	return &qcEnv{t: t, db: db, srv: srv, admin: qcAdminSecret}

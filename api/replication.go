@@ -10,7 +10,8 @@ import (
 	"github.com/labstack/echo/v4"
 	"github.com/prometheus/client_golang/prometheus"
 
-	"curvekeeper/store"
+	"curvekeeper/api/qaui"
+	"curvekeeper/lab"
 )
 
 // readOnlyDetail is what a write to a read-only instance is told.
@@ -61,15 +62,12 @@ type readsFrom struct{ afterLSN string }
 // the lag bound that has replayed the client's last write, or the primary.
 // Outside a GET or HEAD (or with no replicas) it is the primary. Handlers
 // call it for reads that may be served a few seconds stale.
-func (s *Server) reads(ctx context.Context) *store.DB {
+func (s *Server) reads(ctx context.Context) lab.Reader {
 	r, ok := ctx.Value(readsKey{}).(readsFrom)
-	switch {
-	case !ok:
-		return s.db
-	case r.afterLSN != "":
-		return s.db.ReaderAfter(r.afterLSN)
+	if !ok {
+		return s.lab
 	}
-	return s.db.Reader()
+	return s.topo.ReadsFor(r.afterLSN)
 }
 
 // replicationMiddleware refuses writes while the database is a standby
@@ -83,7 +81,7 @@ func (s *Server) replicationMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 	return func(c echo.Context) error {
 		req := c.Request()
 		if !isWriteRequest(c) {
-			if s.db.HasReplicas() && (req.Method == http.MethodGet || req.Method == http.MethodHead) {
+			if s.topo.HasReplicas() && (req.Method == http.MethodGet || req.Method == http.MethodHead) {
 				r := readsFrom{afterLSN: req.Header.Get(HeaderWriteLSN)}
 				if ck, err := req.Cookie(cookieWriteLSN); err == nil && r.afterLSN == "" {
 					r.afterLSN = ck.Value
@@ -92,14 +90,14 @@ func (s *Server) replicationMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 			}
 			return next(c)
 		}
-		if s.db.ReadOnly() {
+		if s.topo.ReadOnly() {
 			return s.refuseWrite(c)
 		}
-		if s.db.HasReplicas() {
+		if s.topo.HasReplicas() {
 			c.Response().Before(func() { s.markWrite(c) })
 		}
 		err := next(c)
-		if err != nil && s.db.NoteError(err) {
+		if err != nil && s.topo.NoteError(err) {
 			s.log.Warn("the database refused a write as a standby: serving reads only until a check finds it writable",
 				"request_id", requestID(c))
 			return s.refuseWrite(c)
@@ -111,8 +109,8 @@ func (s *Server) replicationMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 // refuseWrite answers a write on a read-only instance.
 func (s *Server) refuseWrite(c echo.Context) error {
 	c.Response().Header().Set("Retry-After", readOnlyRetryAfter)
-	if isUIPath(c.Request().URL.Path) {
-		return s.uiError(c, http.StatusServiceUnavailable, "This instance serves reads only just now (its database is a standby). Reviews and sign-in need the primary's instance; try again in a moment.")
+	if qaui.IsPath(c.Request().URL.Path) {
+		return s.ui.Error(c, http.StatusServiceUnavailable, "This instance serves reads only just now (its database is a standby). Reviews and sign-in need the primary's instance; try again in a moment.")
 	}
 	return newProblem(http.StatusServiceUnavailable, readOnlyDetail)
 }
@@ -125,7 +123,7 @@ func (s *Server) markWrite(c echo.Context) {
 	}
 	ctx, cancel := context.WithTimeout(context.WithoutCancel(c.Request().Context()), time.Second)
 	defer cancel()
-	lsn, err := s.db.WriteLSN(ctx)
+	lsn, err := s.topo.WriteLSN(ctx)
 	if err != nil {
 		s.log.Warn("read the WAL position of a write", "request_id", requestID(c), "error", err)
 		return
@@ -138,11 +136,11 @@ func (s *Server) markWrite(c echo.Context) {
 // replicationCollector reports read-only mode and the read replicas to
 // Prometheus, read at each scrape from what the last check found.
 type replicationCollector struct {
-	db                                     *store.DB
+	db                                     lab.Topology
 	readOnly, lag, inUse, reads, fallbacks *prometheus.Desc
 }
 
-func newReplicationCollector(db *store.DB) *replicationCollector {
+func newReplicationCollector(db lab.Topology) *replicationCollector {
 	return &replicationCollector{db: db,
 		readOnly: prometheus.NewDesc("curvekeeper_read_only", "1 while the database is a standby in recovery and writes answer 503.", nil, nil),
 		lag: prometheus.NewDesc("curvekeeper_replica_lag_seconds",

@@ -12,6 +12,7 @@ import (
 
 	"curvekeeper/api"
 	"curvekeeper/api/oapi"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
@@ -21,7 +22,7 @@ import (
 func envOn(t *testing.T, db *store.DB) *env {
 	t.Helper()
 	logs := &syncBuffer{}
-	s, err := api.New(api.Config{}, db, slog.New(slog.NewJSONHandler(logs, nil)))
+	s, err := api.New(api.Config{}, lab.NewService(db), slog.New(slog.NewJSONHandler(logs, nil)))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -50,7 +51,7 @@ func openStore(t *testing.T, url string) *store.DB {
 func adminOnBoth(t *testing.T, p *dbtest.Pair) {
 	t.Helper()
 	prim := openStore(t, p.PrimaryURL)
-	if _, _, err := prim.EnsureToken(context.Background(), "bootstrap-admin", bootstrapSecret, []string{store.ScopeAdmin}); err != nil {
+	if _, _, err := prim.EnsureToken(context.Background(), "bootstrap-admin", bootstrapSecret, []string{lab.ScopeAdmin}); err != nil {
 		t.Fatal(err)
 	}
 	p.CatchUp(t)

@@ -10,28 +10,63 @@ import (
 
 	"github.com/labstack/echo/v4"
 	"golang.org/x/time/rate"
+
+	"curvekeeper/api/qaui"
+	"curvekeeper/lab"
 )
 
 // securityHeadersMiddleware sets the headers every response carries,
 // before anything else runs, so that errors, 404s and problems get them
-// too. Responses under /v1 are never stored by caches: they carry tokens'
-// results. Strict-Transport-Security is sent only over TLS, as RFC 6797
-// §7.2 asks.
+// too; it is the one place that sets them (the QA pages set none of their
+// own). Strict-Transport-Security is sent only over TLS, as RFC 6797 §7.2
+// asks.
 func (s *Server) securityHeadersMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 	return func(c echo.Context) error {
 		h := c.Response().Header()
-		h.Set("X-Content-Type-Options", "nosniff")
-		h.Set("Referrer-Policy", "no-referrer")
-		h.Set("X-Frame-Options", "DENY")
-		h.Set("Content-Security-Policy", "frame-ancestors 'none'")
-		if strings.HasPrefix(c.Request().URL.Path, "/v1/") {
-			h.Set("Cache-Control", "no-store")
+		for _, kv := range securityHeaders(c.Request().URL.Path) {
+			h.Set(kv[0], kv[1])
 		}
 		if c.Request().TLS != nil {
 			h.Set("Strict-Transport-Security", "max-age=31536000")
 		}
 		return next(c)
 	}
+}
+
+// Security headers by kind of response. Every response is kept out of
+// frames and content sniffing. Responses under /v1 are never stored by
+// caches: they carry tokens' results. The QA pages allow no script at all
+// and only their own style sheet and images, and are not stored either;
+// their style sheet may be cached for an hour.
+var (
+	restHeaders = [][2]string{
+		{"X-Content-Type-Options", "nosniff"},
+		{"Referrer-Policy", "no-referrer"},
+		{"X-Frame-Options", "DENY"},
+		{"Content-Security-Policy", "frame-ancestors 'none'"},
+	}
+	v1Headers     = append(restHeaders[:len(restHeaders):len(restHeaders)], [2]string{"Cache-Control", "no-store"})
+	uiPageHeaders = [][2]string{
+		{"X-Content-Type-Options", "nosniff"},
+		{"Referrer-Policy", "same-origin"},
+		{"X-Frame-Options", "DENY"},
+		{"Content-Security-Policy", "default-src 'none'; style-src 'self'; img-src 'self'; form-action 'self'; frame-ancestors 'none'; base-uri 'none'"},
+		{"Cache-Control", "no-store"},
+	}
+	uiStyleHeaders = append(uiPageHeaders[:len(uiPageHeaders)-1:len(uiPageHeaders)-1], [2]string{"Cache-Control", "public, max-age=3600"})
+)
+
+// securityHeaders returns the security headers of a response to path.
+func securityHeaders(path string) [][2]string {
+	switch {
+	case strings.HasPrefix(path, "/v1/"):
+		return v1Headers
+	case path == qaui.StylePath:
+		return uiStyleHeaders
+	case qaui.IsPath(path):
+		return uiPageHeaders
+	}
+	return restHeaders
 }
 
 // DefaultRateLimit and DefaultRateBurst are the per-token request rate
@@ -53,7 +88,7 @@ const ReaderRateFactor = 5
 
 // isMachineReader reports whether scopes hold results:read and nothing else.
 func isMachineReader(scopes []string) bool {
-	return len(scopes) == 1 && scopes[0] == ScopeResultsRead
+	return len(scopes) == 1 && scopes[0] == lab.ScopeResultsRead
 }
 
 // tokenLimiter holds one token bucket per API token. It lives in the

@@ -2,6 +2,7 @@
 package api
 
 import (
+	"context"
 	"fmt"
 	"log/slog"
 	"net/http"
@@ -10,8 +11,10 @@ import (
 	"github.com/labstack/echo/v4"
 	"github.com/prometheus/client_golang/prometheus"
 
+	"curvekeeper/api/curveplot"
 	"curvekeeper/api/oapi"
-	"curvekeeper/store"
+	"curvekeeper/api/qaui"
+	"curvekeeper/lab"
 )
 
 var _ oapi.StrictServerInterface = (*Server)(nil)
@@ -43,7 +46,9 @@ func DefaultConfig() Config {
 // Server is the HTTP service.
 type Server struct {
 	cfg     Config
-	db      *store.DB
+	lab     *lab.Service
+	topo    lab.Topology // the database's replication (read-only mode, read replicas)
+	ui      *qaui.Pages
 	log     *slog.Logger
 	echo    *echo.Echo
 	metrics *metrics
@@ -56,7 +61,7 @@ type Server struct {
 }
 
 // New builds the server and its routes.
-func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
+func New(cfg Config, svc *lab.Service, log *slog.Logger) (*Server, error) {
 	def := DefaultConfig()
 	if cfg.BodyLimit <= 0 {
 		cfg.BodyLimit = def.BodyLimit
@@ -86,7 +91,7 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 	if err != nil {
 		return nil, err
 	}
-	s := &Server{cfg: cfg, db: db, log: log, echo: e, metrics: newMetrics(db),
+	s := &Server{cfg: cfg, lab: svc, topo: svc.Topology(), log: log, echo: e, metrics: newMetrics(svc),
 		scopes: newScopeTable(doc), curves: newCurveCache(1024),
 		authFailures: newTokenLimiter(AuthFailureRate, AuthFailureBurst)}
 	switch {
@@ -101,9 +106,17 @@ func New(cfg Config, db *store.DB, log *slog.Logger) (*Server, error) {
 	e.HTTPErrorHandler = s.errorHandler
 	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware, s.framingMiddleware,
 		s.timeoutMiddleware, s.bodyLimitMiddleware, s.replicationMiddleware, s.authMiddleware, s.rateLimitMiddleware, validator)
-	s.metrics.registry.MustRegister(newReplicationCollector(db))
+	s.metrics.registry.MustRegister(newReplicationCollector(s.topo))
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
-	s.registerUI(e)
+	s.ui = qaui.New(qaui.Deps{Lab: svc, Log: log, Curve: s.freshCurve, Reviewed: s.curves.drop,
+		Plot:       func(ctx context.Context, id string) ([]byte, error) { return s.plot(ctx, id, curveplot.FormatSVG) },
+		TrendChart: trendChart, RequestID: requestID, Status: StatusOf,
+		WithPrincipal: func(ctx context.Context, p lab.Principal) context.Context {
+			return context.WithValue(ctx, principalKey{}, p)
+		},
+		ValidToken:      func(tok string) bool { _, ok := bearer("Bearer " + tok); return ok },
+		AuthFailureWait: s.authFailureWait, AuthFailed: s.authFailed})
+	s.ui.Register(e)
 	return s, nil
 }
 

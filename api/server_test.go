@@ -31,6 +31,7 @@ import (
 	"curvekeeper/api"
 	"curvekeeper/api/apitest"
 	"curvekeeper/api/oapi"
+	"curvekeeper/lab"
 	"curvekeeper/openapi"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
@@ -84,7 +85,7 @@ func newEnvDB(t testing.TB, cfg api.Config, db *store.DB) *env {
 	t.Helper()
 	logs := &syncBuffer{}
 	logger := slog.New(slog.NewJSONHandler(logs, &slog.HandlerOptions{Level: slog.LevelDebug}))
-	s, err := api.New(cfg, db, logger)
+	s, err := api.New(cfg, lab.NewService(db), logger)
 	if err != nil {
 		t.Fatalf("api.New: %v", err)
 	}
@@ -99,7 +100,7 @@ func newEnvDB(t testing.TB, cfg api.Config, db *store.DB) *env {
 			t.Logf("server log:\n%s", tail(logs.String(), 6000))
 		}
 	})
-	if _, _, err := db.EnsureToken(context.Background(), "bootstrap-admin", bootstrapSecret, []string{store.ScopeAdmin}); err != nil {
+	if _, _, err := db.EnsureToken(context.Background(), "bootstrap-admin", bootstrapSecret, []string{lab.ScopeAdmin}); err != nil {
 		t.Fatalf("EnsureToken: %v", err)
 	}
 	return &env{db: db, srv: srv, admin: bootstrapSecret, logs: logs}

@@ -6,7 +6,7 @@ import (
 	"testing"
 	"time"
 
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 type trendBody struct {
@@ -39,11 +39,11 @@ type trendBody struct {
 
 func TestTrendAPI(t *testing.T) {
 	e := newUIEnv(t, false)
-	qa := e.tokens[store.ScopeCurvesReview]
+	qa := e.tokens[lab.ScopeCurvesReview]
 	path := "/v1/trends?instrument=" + uiInstrument + "&analyte=Pb"
 	t.Run("series, baseline and the falling slope's violations", func(t *testing.T) {
 		var tr trendBody
-		e.api(t, e.tokens[store.ScopeResultsRead], http.MethodGet, path+"&baseline=10", nil, http.StatusOK, &tr)
+		e.api(t, e.tokens[lab.ScopeResultsRead], http.MethodGet, path+"&baseline=10", nil, http.StatusOK, &tr)
 		if len(tr.Points) != uiDays+1 {
 			t.Fatalf("%d points, want %d", len(tr.Points), uiDays+1)
 		}
@@ -89,12 +89,12 @@ func TestTrendAPI(t *testing.T) {
 		}
 	})
 	t.Run("other parameters", func(t *testing.T) {
-		for _, p := range store.TrendParameters {
+		for _, p := range lab.TrendParameters {
 			e.api(t, qa, http.MethodGet, path+"&parameter="+p, nil, http.StatusOK, nil)
 		}
 	})
 	t.Run("refusals", func(t *testing.T) {
-		e.api(t, e.tokens[store.ScopeRunsWrite], http.MethodGet, path, nil, http.StatusForbidden, nil)
+		e.api(t, e.tokens[lab.ScopeRunsWrite], http.MethodGet, path, nil, http.StatusForbidden, nil)
 		e.api(t, qa, http.MethodGet, "/v1/trends?instrument="+uiInstrument, nil, http.StatusBadRequest, nil)
 		e.api(t, qa, http.MethodGet, path+"&parameter=colour", nil, http.StatusBadRequest, nil)
 		e.api(t, qa, http.MethodGet, path+"&baseline=1", nil, http.StatusBadRequest, nil)
@@ -131,7 +131,7 @@ func driftOf(t *testing.T, c curveChecks) (found bool, passed, mandatory bool, d
 
 func TestDriftCheckAtIngest(t *testing.T) {
 	e := newUIEnv(t, false)
-	read := e.tokens[store.ScopeResultsRead]
+	read := e.tokens[lab.ScopeResultsRead]
 	get := func(id string) curveChecks {
 		var c curveChecks
 		e.api(t, read, http.MethodGet, "/v1/curves/"+id, nil, http.StatusOK, &c)

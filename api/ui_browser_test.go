@@ -18,7 +18,7 @@ import (
 
 	"github.com/chromedp/chromedp"
 
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // chromiumPath is the Debian package chromium's browser.
@@ -100,7 +100,7 @@ func TestBrowserReviewFlow(t *testing.T) {
 	}
 	shot("01-sign-in")
 	do("sign in",
-		chromedp.SendKeys(chromedp.ID("token"), e.tokens[store.ScopeCurvesReview]),
+		chromedp.SendKeys(chromedp.ID("token"), e.tokens[lab.ScopeCurvesReview]),
 		chromedp.Click(chromedp.CSS(`form button[type="submit"].primary`)),
 		chromedp.WaitVisible(chromedp.ID("curve-list")),
 	)

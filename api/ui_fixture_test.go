@@ -26,6 +26,7 @@ import (
 
 	"curvekeeper/api"
 	"curvekeeper/api/apitest"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
@@ -51,7 +52,7 @@ type uiEnv struct {
 func newUIEnv(t *testing.T, tls bool) *uiEnv {
 	t.Helper()
 	db := dbtest.NewDB(t)
-	s, err := api.New(api.Config{}, db, slog.New(slog.NewTextHandler(io.Discard, nil)))
+	s, err := api.New(api.Config{}, lab.NewService(db), slog.New(slog.NewTextHandler(io.Discard, nil)))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -63,10 +64,10 @@ func newUIEnv(t *testing.T, tls bool) *uiEnv {
 	}
 	t.Cleanup(e.srv.Close)
 	ctx := context.Background()
-	if _, e.admin, err = db.CreateToken(ctx, "fixture-admin", []string{store.ScopeAdmin}, "test"); err != nil {
+	if _, e.admin, err = db.CreateToken(ctx, "fixture-admin", []string{lab.ScopeAdmin}, "test"); err != nil {
 		t.Fatal(err)
 	}
-	for _, sc := range []string{store.ScopeRunsWrite, store.ScopeResultsRead, store.ScopeCurvesReview} {
+	for _, sc := range []string{lab.ScopeRunsWrite, lab.ScopeResultsRead, lab.ScopeCurvesReview} {
 		_, secret, err := db.CreateToken(ctx, "fixture-"+strings.ReplaceAll(sc, ":", "-"), []string{sc}, "test")
 		if err != nil {
 			t.Fatal(err)
@@ -81,7 +82,7 @@ func newUIEnv(t *testing.T, tls bool) *uiEnv {
 		id := e.postRun(t, uiStart.AddDate(0, 0, day), uiSlope(day), []float64{0.5, 1, 2, 5, 10, 20, 50})
 		e.curves = append(e.curves, id)
 		if day < uiDays-3 { // QA approved all but the last three
-			e.api(t, e.tokens[store.ScopeCurvesReview], http.MethodPost, "/v1/curves/"+id+"/review",
+			e.api(t, e.tokens[lab.ScopeCurvesReview], http.MethodPost, "/v1/curves/"+id+"/review",
 				map[string]any{"decision": "approve", "reason": "fixture: weekly QA round"}, http.StatusOK, nil)
 		}
 	}
@@ -114,7 +115,7 @@ func (e *uiEnv) postRun(t *testing.T, at time.Time, slope float64, levels []floa
 			ID string `json:"id"`
 		} `json:"curves"`
 	}
-	e.api(t, e.tokens[store.ScopeRunsWrite], http.MethodPost, "/v1/runs", map[string]any{
+	e.api(t, e.tokens[lab.ScopeRunsWrite], http.MethodPost, "/v1/runs", map[string]any{
 		"method": uiMethod, "instrument": uiInstrument, "acquired_at": at.Format(time.RFC3339), "standards": stds,
 	}, http.StatusCreated, &out)
 	return out.Curves[0].ID

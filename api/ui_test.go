@@ -9,7 +9,7 @@ import (
 	"strings"
 	"testing"
 
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 func findCookie(t *testing.T, h http.Header, name string) *http.Cookie {
@@ -33,7 +33,7 @@ func TestUISignIn(t *testing.T) {
 	})
 	t.Run("cookie attributes and the session row", func(t *testing.T) {
 		b := e.browser(t)
-		p := b.signIn(e.tokens[store.ScopeCurvesReview])
+		p := b.signIn(e.tokens[lab.ScopeCurvesReview])
 		if p.status != http.StatusSeeOther || p.header.Get("Location") != "/ui/curves" {
 			t.Fatalf("sign in: %d %q", p.status, p.header.Get("Location"))
 		}
@@ -71,14 +71,14 @@ func TestUISignIn(t *testing.T) {
 	t.Run("sign-in without its form token is refused", func(t *testing.T) {
 		b := e.browser(t)
 		b.get("/ui/sign-in")
-		p := b.post("/ui/sign-in", url.Values{"token": {e.tokens[store.ScopeCurvesReview]}})
+		p := b.post("/ui/sign-in", url.Values{"token": {e.tokens[lab.ScopeCurvesReview]}})
 		if p.status != http.StatusForbidden {
 			t.Errorf("got %d, want 403", p.status)
 		}
 	})
 	t.Run("sign-out ends the session, and needs the form token", func(t *testing.T) {
 		b := e.browser(t)
-		b.mustSignIn(e.tokens[store.ScopeResultsRead])
+		b.mustSignIn(e.tokens[lab.ScopeResultsRead])
 		list := b.get("/ui/curves")
 		if p := b.post("/ui/sign-out", url.Values{}); p.status != http.StatusForbidden {
 			t.Errorf("sign-out without token: %d, want 403", p.status)
@@ -95,7 +95,7 @@ func TestUISignIn(t *testing.T) {
 
 func TestUISecureCookieOverTLS(t *testing.T) {
 	e := newUIEnv(t, true)
-	p := e.browser(t).signIn(e.tokens[store.ScopeCurvesReview])
+	p := e.browser(t).signIn(e.tokens[lab.ScopeCurvesReview])
 	if ck := findCookie(t, p.header, "ck_session"); !ck.Secure {
 		t.Errorf("cookie over TLS is not Secure: %+v", ck)
 	}
@@ -105,14 +105,14 @@ func TestUIScopes(t *testing.T) {
 	e := newUIEnv(t, false)
 	t.Run("an instrument token cannot read the pages", func(t *testing.T) {
 		b := e.browser(t)
-		b.mustSignIn(e.tokens[store.ScopeRunsWrite])
+		b.mustSignIn(e.tokens[lab.ScopeRunsWrite])
 		if p := b.get("/ui/curves"); p.status != http.StatusForbidden {
 			t.Errorf("list: %d, want 403", p.status)
 		}
 	})
 	t.Run("a reader sees the curve but no review form, and cannot post one", func(t *testing.T) {
 		b := e.browser(t)
-		b.mustSignIn(e.tokens[store.ScopeResultsRead])
+		b.mustSignIn(e.tokens[lab.ScopeResultsRead])
 		p := b.get("/ui/curves/" + e.failing)
 		if p.status != http.StatusOK {
 			t.Fatalf("curve page: %d", p.status)
@@ -125,7 +125,7 @@ func TestUIScopes(t *testing.T) {
 			t.Errorf("review POST: %d, want 403", r.status)
 		}
 		c, err := e.db.GetCurve(context.Background(), e.failing)
-		if err != nil || c.Status != store.StatusPendingReview {
+		if err != nil || c.Status != lab.StatusPendingReview {
 			t.Errorf("curve status %v (%v), want still pending", c.Status, err)
 		}
 	})
@@ -134,7 +134,7 @@ func TestUIScopes(t *testing.T) {
 func TestUIReview(t *testing.T) {
 	e := newUIEnv(t, false)
 	b := e.browser(t)
-	b.mustSignIn(e.tokens[store.ScopeCurvesReview])
+	b.mustSignIn(e.tokens[lab.ScopeCurvesReview])
 	path := "/ui/curves/" + e.failing
 	p := b.get(path)
 	for _, want := range []string{`id="review-form"`, "min_levels", "✗ Fail", "ICH M10", "%RE", `alt="Calibration curve for Pb`, "accreditation"} {
@@ -145,7 +145,7 @@ func TestUIReview(t *testing.T) {
 	token := p.csrf(t)
 	t.Run("CSRF: no token, a wrong token, another session's token", func(t *testing.T) {
 		other := e.browser(t)
-		other.mustSignIn(e.tokens[store.ScopeCurvesReview])
+		other.mustSignIn(e.tokens[lab.ScopeCurvesReview])
 		otherToken := other.get(path).csrf(t)
 		for name, tok := range map[string]string{"none": "", "wrong": "x" + token[1:], "other session": otherToken} {
 			r := b.post(path+"/review", url.Values{"csrf_token": {tok}, "decision": {"reject"}, "reason": {"bad"}})
@@ -181,7 +181,7 @@ func TestUIReview(t *testing.T) {
 func TestUICurveListAndTrend(t *testing.T) {
 	e := newUIEnv(t, false)
 	b := e.browser(t)
-	b.mustSignIn(e.tokens[store.ScopeCurvesReview])
+	b.mustSignIn(e.tokens[lab.ScopeCurvesReview])
 	t.Run("filter by verdict", func(t *testing.T) {
 		p := b.get("/ui/curves?instrument=" + uiInstrument + "&verdict=fail")
 		if p.status != http.StatusOK || !strings.Contains(p.body, e.failing) || strings.Contains(p.body, e.curves[0]) {

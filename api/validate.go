@@ -13,6 +13,9 @@ import (
 	"github.com/getkin/kin-openapi/routers/gorillamux"
 	"github.com/labstack/echo/v4"
 	oapimw "github.com/oapi-codegen/echo-middleware"
+
+	"curvekeeper/api/qaui"
+	"curvekeeper/lab"
 )
 
 func init() {
@@ -31,7 +34,7 @@ func requestValidator(doc *openapi3.T) (echo.MiddlewareFunc, error) {
 	}
 	return func(next echo.HandlerFunc) echo.HandlerFunc {
 		return func(c echo.Context) error {
-			if isUIPath(c.Request().URL.Path) {
+			if qaui.IsPath(c.Request().URL.Path) {
 				return next(c) // the QA pages check their own form input
 			}
 			if c.Request().Method == http.MethodPost {
@@ -185,13 +188,11 @@ func fieldOf(prefix string, err error, fallback ...string) ProblemField {
 	var se *openapi3.SchemaError
 	if errors.As(err, &se) {
 		tokens := se.JSONPointer()
+		anys := make([]any, len(tokens))
 		for i, t := range tokens {
-			tokens[i] = pointerEscaper.Replace(t)
+			anys[i] = t
 		}
-		ptr := "/" + strings.Join(tokens, "/")
-		if ptr == "/" {
-			ptr = ""
-		}
+		ptr := lab.Pointer(anys...)
 		reason := se.Reason
 		if prefix != "" {
 			return ProblemField{Pointer: prefix + ptr, Detail: reason}
@@ -214,16 +215,9 @@ func fieldOf(prefix string, err error, fallback ...string) ProblemField {
 	return ProblemField{Pointer: prefix, Detail: msg}
 }
 
-// pointerEscaper escapes a reference token of a JSON pointer (RFC 6901).
-var pointerEscaper = strings.NewReplacer("~", "~0", "/", "~1")
-
 func firstLine(s string) string {
 	if i := strings.IndexByte(s, '\n'); i >= 0 {
 		return s[:i]
 	}
 	return s
 }
-
-// isUIPath reports whether path belongs to the QA pages under /ui/, which
-// are not part of the API contract.
-func isUIPath(path string) bool { return path == "/ui" || strings.HasPrefix(path, "/ui/") }

@@ -12,6 +12,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"curvekeeper/api/oapi"
+	"curvekeeper/lab"
 )
 
 // The prediction route is the hot path of LIMS integrations: many small
@@ -26,13 +27,13 @@ import (
 const (
 	predictionRoute = "/v1/curves/:id/predictions"
 
-	fastIdentifierMax  = 64     // Identifier maxLength (pattern ^[A-Za-z0-9][A-Za-z0-9._:-]{0,63}$)
-	fastSamplesMax     = 1000   // PredictionRequest.samples maxItems (minItems 1)
-	fastResponsesMax   = 1000   // Responses maxItems (minItems 1)
-	fastResponseAbsMax = 1.0e15 // Response minimum -1e15, maximum 1e15
-	fastDilutionMax    = 1.0e6  // Dilution exclusiveMinimum 0, maximum 1e6
-	fastConfidenceMin  = 0.5    // Confidence minimum
-	fastConfidenceMax  = 0.999  // Confidence maximum
+	fastIdentifierMax  = lab.MaxNameLen // Identifier maxLength (pattern ^[A-Za-z0-9][A-Za-z0-9._:-]{0,63}$)
+	fastSamplesMax     = 1000           // PredictionRequest.samples maxItems (minItems 1)
+	fastResponsesMax   = 1000           // Responses maxItems (minItems 1)
+	fastResponseAbsMax = 1.0e15         // Response minimum -1e15, maximum 1e15
+	fastDilutionMax    = 1.0e6          // Dilution exclusiveMinimum 0, maximum 1e6
+	fastConfidenceMin  = 0.5            // Confidence minimum
+	fastConfidenceMax  = 0.999          // Confidence maximum
 )
 
 // predictionFastPath reads the body of a prediction request, puts it back

@@ -9,6 +9,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"curvekeeper/api/oapi"
+	"curvekeeper/lab"
 )
 
 // Instruments post runs as JSON far more often than as CSV, and for
@@ -25,11 +26,11 @@ const (
 
 	headerIdempotencyKey = "Idempotency-Key"
 
-	fastStandardsMax     = 500    // RunRequest.standards maxItems (minItems 1)
-	fastRunSamplesMax    = 1000   // RunRequest.samples maxItems (no minItems)
-	fastOperatorMax      = 128    // Operator maxLength (pattern ^[A-Za-z0-9][A-Za-z0-9._:@-]{0,127}$)
-	fastConcentrationMax = 1.0e12 // Concentration minimum 0, maximum 1e12
-	fastIdemKeyMax       = 128    // Idempotency-Key maxLength (pattern ^[A-Za-z0-9._:-]{1,128}$)
+	fastStandardsMax     = 500                      // RunRequest.standards maxItems (minItems 1)
+	fastRunSamplesMax    = 1000                     // RunRequest.samples maxItems (no minItems)
+	fastOperatorMax      = 128                      // Operator maxLength (pattern ^[A-Za-z0-9][A-Za-z0-9._:@-]{0,127}$)
+	fastConcentrationMax = 1.0e12                   // Concentration minimum 0, maximum 1e12
+	fastIdemKeyMax       = lab.MaxIdempotencyKeyLen // Idempotency-Key maxLength (pattern ^[A-Za-z0-9._:-]{1,128}$)
 )
 
 // The member names of RunRequest, StandardInput and RunSampleInput that the

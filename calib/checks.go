@@ -196,7 +196,7 @@ func mandelCheck(r *Report, d *dataset, des *design, f lsq, sspe float64, nf noi
 	} else {
 		t.s(" ≤ ")
 	}
-	t.s("F(").gc(1 - pol.MandelAlpha).s("; 1, ").i(k - 3).s(") = ").gc(fc)
+	t.s("F(").g(1 - pol.MandelAlpha).s("; 1, ").i(k - 3).s(") = ").g(fc)
 	switch {
 	case r.Model == Quadratic && better:
 		t.s(": the quadratic fits significantly better than a line, so the quadratic model is justified.")
@@ -265,7 +265,7 @@ func lackOfFitCheck(d *dataset, f lsq, sspe float64, nf noise, pol Policy, t *te
 	} else {
 		t.s(" > ")
 	}
-	t.s("F(").gc(1 - pol.LackOfFitAlpha).s("; ").i(k - p).s(", ").i(n - k).s(") = ").gc(fc)
+	t.s("F(").g(1 - pol.LackOfFitAlpha).s("; ").i(k - p).s(", ").i(n - k).s(") = ").g(fc)
 	if c.Passed {
 		t.s(": the scatter of the level means about the curve is consistent with the scatter of the replicates.")
 	} else {
@@ -311,7 +311,7 @@ func homoscedasticityCheck(r *Report, d *dataset, nf noise, pol Policy, t *text)
 	} else {
 		t.s(" > ")
 	}
-	t.s("F(").gc(1 - pol.HomoscedasticityAlpha).s("; ").i(dn).s(", ").i(dd).s(") = ").gc(fc)
+	t.s("F(").g(1 - pol.HomoscedasticityAlpha).s("; ").i(dn).s(", ").i(dd).s(") = ").g(fc)
 	switch {
 	case c.Passed:
 		t.s(": the response variance at the lowest and highest non-zero standard does not differ significantly.")
@@ -403,9 +403,9 @@ func backCalcCheck(r *Report, d *dataset, pol Policy, t *text) Check {
 	frac := float64(pass) / float64(total)
 	c := Check{Name: CheckBackCalculation, Statistic: frac, Limit: pol.BackCalcMinPassFraction, Computed: true,
 		Passed: frac >= pol.BackCalcMinPassFraction && levelsOK >= pol.MinLevels && levelsBad == 0}
-	t.i(pass).s(" of ").i(total).s(" standards read back within ±").gc(pol.BackCalcTolerancePct).
-		s(" % of nominal (±").gc(pol.BackCalcLowTolerancePct).s(" % at the LLOQ, the lowest non-zero level), covering ").i(levelsOK).
-		s(" level(s); required: a fraction of ").gc(pol.BackCalcMinPassFraction).s(" and ").i(pol.MinLevels).
+	t.i(pass).s(" of ").i(total).s(" standards read back within ±").g(pol.BackCalcTolerancePct).
+		s(" % of nominal (±").g(pol.BackCalcLowTolerancePct).s(" % at the LLOQ, the lowest non-zero level), covering ").i(levelsOK).
+		s(" level(s); required: a fraction of ").g(pol.BackCalcMinPassFraction).s(" and ").i(pol.MinLevels).
 		s(" levels, and at least half the standards of each level with replicates (ICH M10).")
 	if levelsBad > 0 {
 		lv := d.levels[firstBad]
@@ -434,7 +434,7 @@ func rSquaredCheck(r *Report, pol Policy, t *text) Check {
 	} else {
 		t.g(r.RSquared)
 	}
-	t.s(" against a minimum of ").gc(pol.MinRSquared)
+	t.s(" against a minimum of ").g(pol.MinRSquared)
 	switch {
 	case r.Model == LinearOrigin:
 		t.s(" (uncentred R² of the origin model, which is larger than a centred one)")
@@ -470,7 +470,7 @@ func rseCheck(r *Report, d *dataset, pol Policy, t *text) Check {
 	rse := 100 * math.Sqrt(ss/float64(n-p))
 	c := Check{Name: CheckRSE, Statistic: rse, Limit: pol.MaxRSEPct, Computed: true, Passed: rse <= pol.MaxRSEPct}
 	t.s("RSE = ").g(rse).s(" % over ").i(n).s(" standards (n − p = ").i(n - p).
-		s(") against a maximum of ").gc(pol.MaxRSEPct).s(" %.")
+		s(") against a maximum of ").g(pol.MaxRSEPct).s(" %.")
 	return c
 }
 
@@ -532,7 +532,7 @@ func interceptCheck(r *Report, d *dataset, des *design, f lsq, nf noise, pol Pol
 	} else {
 		t.s(", |t| > ")
 	}
-	t.s("t(").gc(1 - pol.InterceptAlpha/2).s("; ").i(df).s(") = ").gc(tc)
+	t.s("t(").g(1 - pol.InterceptAlpha/2).s("; ").i(df).s(") = ").g(tc)
 	switch {
 	case c.Passed:
 		t.s(": the intercept does not differ significantly from zero.")

@@ -147,7 +147,7 @@ func checkCurveData(x, y, w []float64) error {
 	}
 	var pos []float64
 	for i := range x {
-		if !finite(x[i], y[i]) {
+		if !Finite(x[i], y[i]) {
 			return inputErr("points", "reading %d is not finite", i)
 		}
 		if x[i] < 0 {

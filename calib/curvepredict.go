@@ -37,7 +37,7 @@ func (f *CurveFit) Predict(responses []float64, w0, dilution, confidence float64
 	}
 	var sum float64
 	for i, v := range responses {
-		if !finite(v) {
+		if !Finite(v) {
 			return Prediction{}, inputErr("responses", "response %d is not finite", i)
 		}
 		sum += v
@@ -56,7 +56,7 @@ func (f *CurveFit) Predict(responses []float64, w0, dilution, confidence float64
 	}
 	m := len(responses)
 	y0 := sum / float64(m)
-	if !finite(y0) {
+	if !Finite(y0) {
 		return Prediction{}, inputErr("responses", "their mean is not finite")
 	}
 	pr := Prediction{Method: "delta", Readings: m, MeanResponse: y0, Dilution: dilution,
@@ -87,14 +87,14 @@ func (f *CurveFit) Predict(responses []float64, w0, dilution, confidence float64
 	}
 	sens := c.slope(x0, beta)
 	se := math.Sqrt(v) / math.Abs(sens)
-	if !finite(se) || se == 0 && v > 0 {
+	if !Finite(se) || se == 0 && v > 0 {
 		pr.Flags = append(pr.Flags, FlagUnbounded)
 		return pr, nil
 	}
 	pr.StandardError = se * dilution
 	t := studentT(1-(1-confidence)/2, f.DF)
 	lo, hi := (x0-t*se)*dilution, (x0+t*se)*dilution
-	if !finite(lo, hi) {
+	if !Finite(lo, hi) {
 		pr.Flags = append(pr.Flags, FlagUnbounded)
 		return pr, nil
 	}

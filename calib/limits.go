@@ -74,7 +74,7 @@ func computeLimits(r *Report, f lsq, wo WeightOptions, t *text) Limits {
 		t.s(" (the quadratic's sensitivity b1 + 2·b2·x at the lowest standard x = ").g(r.Range.Low).s(")")
 	}
 	t.s(". Critical value y_c, x_c and minimum detectable x_d ≈ 2·x_c by ISO 11843-2 for one reading of the unknown with SD σ, α = β = 0.05, t(0.95; ").
-		i(r.DF).s(") = ").gc(tq).s(", assuming a constant response SD")
+		i(r.DF).s(") = ").g(tq).s(", assuming a constant response SD")
 	if r.Weighting != WeightNone || ls.basis == SigmaBlank {
 		t.s(" near the low end; with weights or a blank SD these limits are approximations")
 	}

@@ -159,7 +159,7 @@ func checkNLLSInput(p int, x, y, w []float64, opt *NLLSOptions) error {
 		return inputErr("points", "x, y and weights differ in length")
 	}
 	for i := range x {
-		if !finite(x[i], y[i]) {
+		if !Finite(x[i], y[i]) {
 			return inputErr("points", "reading %d is not finite", i)
 		}
 		if w != nil && !(w[i] > 0 && !math.IsInf(w[i], 0)) {
@@ -179,7 +179,7 @@ func checkNLLSInput(p int, x, y, w []float64, opt *NLLSOptions) error {
 	}
 	for j, v := range opt.Start {
 		lo, hi := bounds(*opt, j)
-		if !finite(v) || v < lo || v > hi || math.IsNaN(lo) || math.IsNaN(hi) {
+		if !Finite(v) || v < lo || v > hi || math.IsNaN(lo) || math.IsNaN(hi) {
 			return inputErr("start", "parameter %d: start %v is not finite or lies outside its bounds [%v, %v]", j, v, lo, hi)
 		}
 	}
@@ -278,7 +278,7 @@ func (s *nllsState) residuals(beta, r []float64) float64 {
 		r[i] = ri
 		ss += ri * ri
 	}
-	if !finite(ss) {
+	if !Finite(ss) {
 		return math.NaN()
 	}
 	return ss
@@ -298,7 +298,7 @@ func (s *nllsState) evalJacobian() bool {
 	for _, v := range s.r {
 		s.ss += v * v
 	}
-	if !finite(s.ss) {
+	if !Finite(s.ss) {
 		return false
 	}
 	for l := range s.free {
@@ -307,7 +307,7 @@ func (s *nllsState) evalJacobian() bool {
 			v := s.jac[i*len(s.free)+l]
 			nn += v * v
 		}
-		if !finite(nn) {
+		if !Finite(nn) {
 			return false
 		}
 		s.d[l] = max(s.d[l], math.Sqrt(nn))
@@ -478,7 +478,7 @@ func (s *nllsState) step(lambda float64, delta []float64) bool {
 		if s.active[l] {
 			v = 0
 		}
-		if !finite(v) {
+		if !Finite(v) {
 			return false
 		}
 		lo, hi := bounds(s.opt, j)
@@ -627,7 +627,7 @@ func (s *nllsState) covariance(sd float64) ([]float64, bool) {
 		}
 	}
 	for _, v := range cov {
-		if !finite(v) {
+		if !Finite(v) {
 			return nil, false
 		}
 	}

@@ -350,22 +350,22 @@ func FailedReport(points []Point, opt Options, cause error) *Report {
 
 // finite reports whether every float in the report is finite.
 func (r *Report) finite() bool {
-	if !finite(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
+	if !Finite(r.ResidualSD, r.RSquared, r.Confidence, r.SumW, r.MeanXW, r.MeanYW, r.SxxW, r.SumWX2,
 		r.WeightScale, r.WeightFloor, r.Variance.C0, r.Variance.C1, r.Variance.Floor, r.HeaviestLevel.Share,
 		r.Limits.LOD, r.Limits.LOQ, r.Limits.Sigma, r.Limits.CriticalValue, r.Limits.CriticalConc, r.Limits.DetectionLimit,
 		r.Range.Low, r.Range.High) {
 		return false
 	}
-	if !finite(r.Coefficients...) || !finite(r.StandardErrors...) {
+	if !Finite(r.Coefficients...) || !Finite(r.StandardErrors...) {
 		return false
 	}
 	for _, row := range r.Covariance {
-		if !finite(row...) {
+		if !Finite(row...) {
 			return false
 		}
 	}
 	for _, c := range r.WeightCandidates {
-		if !finite(c.SumAbsRE, c.MaxLevelShare) {
+		if !Finite(c.SumAbsRE, c.MaxLevelShare) {
 			return false
 		}
 	}
@@ -390,7 +390,7 @@ func (r *Report) finite() bool {
 
 // finite reports whether every v is neither NaN nor ±Inf (v − v is NaN for
 // both, 0 for every finite v).
-func finite(v ...float64) bool {
+func Finite(v ...float64) bool {
 	var s float64
 	for _, x := range v {
 		s += x - x
@@ -427,21 +427,7 @@ func (t *text) free() { textPool.Put(t) }
 func (t *text) s(v string) *text { t.b = append(t.b, v...); return t }
 
 // g appends v with six significant digits (as fmtG).
-func (t *text) g(v float64) *text { t.b = appendG6(t.b, v); return t }
-
-// gc appends v exactly as g does, from a small cache: for the values that
-// recur run after run (policy thresholds and t and F quantiles), whose
-// formatting would otherwise cost more than the arithmetic of the check.
-func (t *text) gc(v float64) *text { t.b = append(t.b, cachedG(v)...); return t }
-
-// gCache caches fmtG by the value's bits.
-var gCache = newSetCache[uint64, string](256)
-
-// cachedG returns fmtG(v), from gCache when it holds v.
-func cachedG(v float64) string {
-	b := math.Float64bits(v)
-	return gCache.get(b, b, func() string { return fmtG(v) })
-}
+func (t *text) g(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 6, 64); return t }
 
 // g10 appends v with ten significant digits.
 func (t *text) g10(v float64) *text { t.b = strconv.AppendFloat(t.b, v, 'g', 10, 64); return t }

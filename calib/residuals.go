@@ -86,9 +86,9 @@ func runsCheck(r *Report, d *dataset, f lsq, nf noise, pol Policy, t *text) Chec
 	c := Check{Name: CheckResidualRuns, Statistic: float64(runs), Limit: float64(crit), Computed: true, Passed: pv > pol.RunsAlpha}
 	t.i(runs).s(" runs of residual signs (").i(n1).s(" positive, ").i(n2).s(" negative), P(R ≤ ").i(runs).s(") = ").g(pv)
 	if c.Passed {
-		t.s(" > ").gc(pol.RunsAlpha).s(": no sign of systematic curvature.")
+		t.s(" > ").g(pol.RunsAlpha).s(": no sign of systematic curvature.")
 	} else {
-		t.s(" ≤ ").gc(pol.RunsAlpha).s(": too few runs, the residuals follow a pattern (curvature or a wrong model).")
+		t.s(" ≤ ").g(pol.RunsAlpha).s(": too few runs, the residuals follow a pattern (curvature or a wrong model).")
 	}
 	if crit == 0 {
 		t.s(" With so few residuals of each sign no run count is significant; the test has no power here.")
@@ -206,8 +206,8 @@ func outlierCheck(r *Report, d *dataset, nf noise, pol Policy, t *text) Check {
 	}
 	c := Check{Name: CheckOutliers, Statistic: maxR, Limit: pol.OutlierStudentized, Computed: true,
 		Passed: maxR <= pol.OutlierStudentized && maxD <= pol.OutlierCooksD}
-	t.s("Largest |studentised residual| ").g(maxR).s(" (limit ").gc(pol.OutlierStudentized).
-		s("), largest Cook's distance ").g(maxD).s(" (limit ").gc(pol.OutlierCooksD).s(").")
+	t.s("Largest |studentised residual| ").g(maxR).s(" (limit ").g(pol.OutlierStudentized).
+		s("), largest Cook's distance ").g(maxD).s(" (limit ").g(pol.OutlierCooksD).s(").")
 	if bad != nil {
 		t.s(" Flagged: ").add(bad).s(".")
 	}

@@ -56,7 +56,7 @@ func selfStart(m Model, x, y, w []float64, opt CurveOptions, lower, upper []floa
 		if v, ok := fixed(j); ok {
 			s[j] = v
 		}
-		if !finite(s[j]) {
+		if !Finite(s[j]) {
 			s[j] = 1
 		}
 		s[j] = min(max(s[j], lower[j]), upper[j])
@@ -108,7 +108,7 @@ func lineFit(u, v []float64) (b0, b1 float64, ok bool) {
 		return 0, 0, false
 	}
 	b1 = suv / suu
-	return mv - b1*mu, b1, finite(b1, mv-b1*mu)
+	return mv - b1*mu, b1, Finite(b1, mv-b1*mu)
 }
 
 func startLogistic(x, y []float64, e [4]float64, fixed func(int) (float64, bool)) []float64 {
@@ -137,7 +137,7 @@ func startLogistic(x, y []float64, e [4]float64, fixed func(int) (float64, bool)
 	}
 	b0, b1, ok := lineFit(lx, z)
 	b, c := b1, math.Exp(-b0/b1)
-	if !ok || !(b1 > 0) || !finite(c) {
+	if !ok || !(b1 > 0) || !Finite(c) {
 		var m float64
 		for _, v := range all {
 			m += v
@@ -197,7 +197,7 @@ func startExp(x, y []float64, e [4]float64, offset bool, fixed func(int) (float6
 		sxx += x[i] * x[i]
 	}
 	b := sxz / sxx
-	if !(b > 0) || !finite(b) {
+	if !(b > 0) || !Finite(b) {
 		b = 1 / slices.Max(x)
 	}
 	if offset {

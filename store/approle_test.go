@@ -8,6 +8,7 @@ import (
 
 	"github.com/jackc/pgx/v5/pgconn"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
@@ -53,17 +54,17 @@ func TestAppRoleCannotChangeAudit(t *testing.T) {
 	if err != nil {
 		t.Fatalf("CreateRun as %s: %v", store.AppRole, err)
 	}
-	if _, err := db.ReviewCurve(ctx, created.Curves[0].ID, store.DecisionApprove, "", "qa-test"); err != nil {
+	if _, err := db.ReviewCurve(ctx, created.Curves[0].ID, lab.DecisionApprove, "", "qa-test"); err != nil {
 		t.Fatalf("ReviewCurve as %s: %v", store.AppRole, err)
 	}
-	id, secret, err := db.CreateToken(ctx, "lims", []string{store.ScopeResultsRead}, "admin-test")
+	id, secret, err := db.CreateToken(ctx, "lims", []string{lab.ScopeResultsRead}, "admin-test")
 	if err != nil {
 		t.Fatalf("CreateToken as %s: %v", store.AppRole, err)
 	}
 	if err := db.RevokeToken(ctx, id, "admin-test"); err != nil {
 		t.Fatalf("RevokeToken as %s: %v", store.AppRole, err)
 	}
-	if _, err := db.LookupToken(ctx, secret); store.KindOf(err) != store.KindNotFound {
+	if _, err := db.LookupToken(ctx, secret); lab.KindOf(err) != lab.KindNotFound {
 		t.Fatalf("LookupToken of a revoked token = %v, want KindNotFound", err)
 	}
 	if err := db.CheckSchema(ctx); err != nil {

@@ -5,9 +5,10 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // Audit actions written by the store.
@@ -33,17 +34,6 @@ WHERE (entity_type = 'curve' AND entity_id = $1)
 ORDER BY id`
 )
 
-// AuditEvent is one row of the append-only audit trail.
-type AuditEvent struct {
-	ID         int64
-	At         time.Time
-	Actor      string
-	Action     string
-	EntityType string // "token", "method", "run" or "curve"
-	EntityID   string
-	Detail     json.RawMessage // a JSON object
-}
-
 // auditDetail marshals the detail of an audit row.
 func auditDetail(detail any) ([]byte, error) {
 	b, err := json.Marshal(detail)
@@ -67,7 +57,7 @@ func writeAudit(ctx context.Context, tx pgx.Tx, actor, action, entityType, entit
 
 // ListAudit returns the audit trail of a curve, oldest first: the events of
 // the curve itself and of the run it was fitted from.
-func (db *DB) ListAudit(ctx context.Context, curveID string) ([]AuditEvent, error) {
+func (db *DB) ListAudit(ctx context.Context, curveID string) ([]lab.AuditEvent, error) {
 	id, err := parseID("curve", curveID)
 	if err != nil {
 		return nil, err
@@ -75,7 +65,7 @@ func (db *DB) ListAudit(ctx context.Context, curveID string) ([]AuditEvent, erro
 	var runID string
 	err = db.Pool.QueryRow(ctx, `SELECT run_id FROM curves WHERE id = $1`, id).Scan(&runID)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "curve %s not found", id)
+		return nil, lab.Errorf(lab.KindNotFound, "curve %s not found", id)
 	}
 	if err != nil {
 		return nil, classify("select curve "+id, err)
@@ -84,8 +74,8 @@ func (db *DB) ListAudit(ctx context.Context, curveID string) ([]AuditEvent, erro
 	if err != nil {
 		return nil, classify("select audit of curve "+id, err)
 	}
-	events, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (AuditEvent, error) {
-		var e AuditEvent
+	events, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.AuditEvent, error) {
+		var e lab.AuditEvent
 		err := row.Scan(&e.ID, &e.At, &e.Actor, &e.Action, &e.EntityType, &e.EntityID, &e.Detail)
 		return e, err
 	})

@@ -4,13 +4,15 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"github.com/jackc/puddle/v2"
 	"io"
 	"net"
 	"strings"
 	"syscall"
 
 	"github.com/jackc/pgx/v5/pgconn"
+	"github.com/jackc/puddle/v2"
+
+	"curvekeeper/lab"
 )
 
 // SQLSTATE codes the store recognises.
@@ -30,13 +32,13 @@ func classify(op string, err error) error {
 	if err == nil {
 		return nil
 	}
-	var se *Error
+	var se *lab.Error
 	if errors.As(err, &se) {
 		return err
 	}
 	wrapped := fmt.Errorf("store: %s: %w", op, err)
 	if unavailable(err) {
-		return &Error{Kind: KindUnavailable, Message: "the database is unavailable", Err: wrapped}
+		return &lab.Error{Kind: lab.KindUnavailable, Message: "the database is unavailable", Err: wrapped}
 	}
 	return wrapped
 }

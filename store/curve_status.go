@@ -5,6 +5,8 @@ import (
 	"errors"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // CurveStatus returns the review status of curve id (one indexed read, for
@@ -17,7 +19,7 @@ func (db *DB) CurveStatus(ctx context.Context, id string) (string, error) {
 	var status string
 	err = db.Pool.QueryRow(ctx, `SELECT status FROM curves WHERE id = $1`, id).Scan(&status)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return "", Errorf(KindNotFound, "no curve %s", id)
+		return "", lab.Errorf(lab.KindNotFound, "no curve %s", id)
 	}
 	if err != nil {
 		return "", classify("select curve status", err)
@@ -29,7 +31,7 @@ func (db *DB) CurveStatus(ctx context.Context, id string) (string, error) {
 // one round trip, for the prediction route, whose every request needs both.
 // The token decision is LookupToken's; the status is "" when curve id does
 // not exist (the caller then reports not found as CurveStatus would).
-func (db *DB) LookupTokenAndCurveStatus(ctx context.Context, secret, curveID string) (Token, string, error) {
+func (db *DB) LookupTokenAndCurveStatus(ctx context.Context, secret, curveID string) (lab.Principal, string, error) {
 	id, err := parseID("curve", curveID)
 	if err != nil {
 		t, err := db.LookupToken(ctx, secret)

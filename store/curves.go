@@ -18,76 +18,16 @@ import (
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
-
-// Verdicts and review statuses of a curve.
-const (
-	VerdictPass = "pass"
-	VerdictFail = "fail"
-
-	StatusPendingReview = "pending_review"
-	StatusApproved      = "approved"
-	StatusRejected      = "rejected"
-
-	DecisionApprove = "approve"
-	DecisionReject  = "reject"
-)
-
-// History page sizes.
-const (
-	DefaultCurveLimit = 50
-	MaxCurveLimit     = 1000
-)
-
-// CurveSummary is a curve's row without its report, as history lists it.
-type CurveSummary struct {
-	ID             string
-	RunID          string
-	RevisionOf     string // "" for a run's own fit
-	Method         string
-	MethodRevision int
-	Instrument     string
-	Analyte        string
-	Unit           string
-	Model          calib.Model
-	Weighting      calib.Weighting
-	Verdict        string // VerdictPass or VerdictFail
-	Status         string // StatusPendingReview, StatusApproved or StatusRejected
-	EngineVersion  string
-	AcquiredAt     time.Time
-	CreatedAt      time.Time
-	CreatedBy      string
-	ReviewedAt     *time.Time
-	ReviewedBy     string
-	// Copies of report values for trends; nil when not computed.
-	Slope, Intercept, ResidualSD, RSquared, LOD *float64
-	// FailedChecks names the checks that did not pass, mandatory or advisory.
-	FailedChecks []string
-}
-
-// Curve is a stored curve with its report and, once reviewed, its review.
-type Curve struct {
-	CurveSummary
-	Report *calib.Report
-	Review *Review // nil while pending review
-}
-
-// Review is the one review a curve can have.
-type Review struct {
-	CurveID  string
-	Decision string // DecisionApprove or DecisionReject
-	Reason   string
-	Actor    string
-	At       time.Time
-}
 
 const curveColumns = `id, run_id, revision_of, method, method_revision, instrument, analyte, unit, model, weighting,
 verdict, status, engine_version, acquired_at, created_at, created_by, reviewed_at, reviewed_by,
 slope, intercept, residual_sd, r_squared, lod, failed_checks`
 
-func scanCurveSummary(row pgx.Row, extra ...any) (CurveSummary, error) {
+func scanCurveSummary(row pgx.Row, extra ...any) (lab.CurveSummary, error) {
 	var (
-		c                    CurveSummary
+		c                    lab.CurveSummary
 		revisionOf, reviewer *string
 		model, weighting     string
 	)
@@ -96,7 +36,7 @@ func scanCurveSummary(row pgx.Row, extra ...any) (CurveSummary, error) {
 		&c.CreatedBy, &c.ReviewedAt, &reviewer, &c.Slope, &c.Intercept, &c.ResidualSD, &c.RSquared, &c.LOD,
 		&c.FailedChecks}, extra...)
 	if err := row.Scan(dest...); err != nil {
-		return CurveSummary{}, err
+		return lab.CurveSummary{}, err
 	}
 	c.Model, c.Weighting = calib.Model(model), calib.Weighting(weighting)
 	if revisionOf != nil {
@@ -109,7 +49,7 @@ func scanCurveSummary(row pgx.Row, extra ...any) (CurveSummary, error) {
 }
 
 // GetCurve returns curve id with its decoded report and its review.
-func (db *DB) GetCurve(ctx context.Context, id string) (*Curve, error) {
+func (db *DB) GetCurve(ctx context.Context, id string) (*lab.Curve, error) {
 	id, err := parseID("curve", id)
 	if err != nil {
 		return nil, err
@@ -124,45 +64,26 @@ SELECT c.`+strings.ReplaceAll(curveColumns, ", ", ", c.")+`, c.report, r.decisio
 FROM curves c LEFT JOIN reviews r ON r.curve_id = c.id
 WHERE c.id = $1`, id), &report, &decision, &reason, &actor, &at)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "curve %s not found", id)
+		return nil, lab.Errorf(lab.KindNotFound, "curve %s not found", id)
 	}
 	if err != nil {
 		return nil, classify("select curve "+id, err)
 	}
-	c := &Curve{CurveSummary: summary, Report: new(calib.Report)}
+	c := &lab.Curve{CurveSummary: summary, Report: new(calib.Report)}
 	if err := json.Unmarshal(report, c.Report); err != nil {
 		return nil, fmt.Errorf("store: decode report of curve %s: %w", id, err)
 	}
 	if decision != nil {
-		c.Review = &Review{CurveID: id, Decision: *decision, Reason: *reason, Actor: *actor, At: *at}
+		c.Review = &lab.Review{CurveID: id, Decision: *decision, Reason: *reason, Actor: *actor, At: *at}
 	}
 	return c, nil
-}
-
-// CurveFilter selects curves for ListCurves. Empty fields do not filter.
-type CurveFilter struct {
-	Instrument string
-	Analyte    string
-	Method     string
-	Status     string
-	Verdict    string
-	From       time.Time // acquired_at >= From
-	To         time.Time // acquired_at < To
-	Limit      int       // 0 means DefaultCurveLimit; at most MaxCurveLimit
-	Cursor     string    // NextCursor of the previous page; "" for the first
-}
-
-// CurvePage is one page of history.
-type CurvePage struct {
-	Curves     []CurveSummary
-	NextCursor string // "" on the last page
 }
 
 // encodeCursor makes the opaque cursor after (acquiredAt, id) for the query
 // f: base64url of the time in microseconds (8 bytes), the id (16 bytes) and
 // the first 8 bytes of a SHA-256 of f's filters, so that a cursor handed back
 // with other filters is refused instead of silently paging another query.
-func encodeCursor(acquiredAt time.Time, id string, f CurveFilter) (string, error) {
+func encodeCursor(acquiredAt time.Time, id string, f lab.CurveFilter) (string, error) {
 	u, err := uuid.Parse(id)
 	if err != nil {
 		return "", fmt.Errorf("store: cursor id: %w", err)
@@ -174,20 +95,20 @@ func encodeCursor(acquiredAt time.Time, id string, f CurveFilter) (string, error
 	return base64.RawURLEncoding.EncodeToString(b), nil
 }
 
-func decodeCursor(s string, f CurveFilter) (time.Time, string, error) {
+func decodeCursor(s string, f lab.CurveFilter) (time.Time, string, error) {
 	b, err := base64.RawURLEncoding.DecodeString(s)
 	if err != nil || len(b) != 32 {
-		return time.Time{}, "", FieldError("/cursor", "cursor is not one this service issued")
+		return time.Time{}, "", lab.ParamError(lab.KindInvalid, lab.InQuery, "cursor", "cursor is not one this service issued")
 	}
 	if !bytes.Equal(b[24:], filterDigest(f)) {
-		return time.Time{}, "", FieldError("/cursor", "cursor was issued for other filters; send the same filters as the first page, or start again without a cursor")
+		return time.Time{}, "", lab.ParamError(lab.KindInvalid, lab.InQuery, "cursor", "cursor was issued for other filters; send the same filters as the first page, or start again without a cursor")
 	}
 	u, _ := uuid.FromBytes(b[8:24])
 	return time.UnixMicro(int64(binary.BigEndian.Uint64(b[:8]))).UTC(), u.String(), nil
 }
 
 // filterDigest identifies the filters of a history query (not its page size).
-func filterDigest(f CurveFilter) []byte {
+func filterDigest(f lab.CurveFilter) []byte {
 	h := sha256.New()
 	for _, part := range []string{f.Instrument, f.Analyte, f.Method, f.Status, f.Verdict,
 		f.From.UTC().Format(time.RFC3339Nano), f.To.UTC().Format(time.RFC3339Nano)} {
@@ -200,7 +121,7 @@ func filterDigest(f CurveFilter) []byte {
 // time. Pages are cut by keyset on that pair, never by OFFSET, so page 1,000
 // costs what page 1 costs and a curve stored between two calls neither shifts
 // nor repeats the pages after the cursor.
-func (db *DB) ListCurves(ctx context.Context, f CurveFilter) (*CurvePage, error) {
+func (db *DB) ListCurves(ctx context.Context, f lab.CurveFilter) (*lab.CurvePage, error) {
 	sql, args, limit, err := curveQuery(f)
 	if err != nil {
 		return nil, err
@@ -209,13 +130,13 @@ func (db *DB) ListCurves(ctx context.Context, f CurveFilter) (*CurvePage, error)
 	if err != nil {
 		return nil, classify("list curves", err)
 	}
-	curves, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (CurveSummary, error) {
+	curves, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.CurveSummary, error) {
 		return scanCurveSummary(row)
 	})
 	if err != nil {
 		return nil, classify("scan curves", err)
 	}
-	page := &CurvePage{Curves: curves}
+	page := &lab.CurvePage{Curves: curves}
 	if len(curves) > limit {
 		page.Curves = curves[:limit]
 		last := page.Curves[limit-1]
@@ -233,7 +154,7 @@ func (db *DB) ListCurves(ctx context.Context, f CurveFilter) (*CurvePage, error)
 // planner. It runs on a connection taken out of the pool and closed after, so
 // its session settings and prepared statement go with it. It is for
 // diagnostics, tests and benchmarks.
-func (db *DB) ExplainListCurves(ctx context.Context, f CurveFilter) ([]string, error) {
+func (db *DB) ExplainListCurves(ctx context.Context, f lab.CurveFilter) ([]string, error) {
 	sql, args, _, err := curveQuery(f)
 	if err != nil {
 		return nil, err
@@ -281,19 +202,19 @@ func (db *DB) ExplainListCurves(ctx context.Context, f CurveFilter) ([]string, e
 // appear in the SQL, so each combination gets a plan that can use the index
 // leading with its columns. It asks for limit+1 rows to know whether a next
 // page exists.
-func curveQuery(f CurveFilter) (sql string, args []any, limit int, err error) {
+func curveQuery(f lab.CurveFilter) (sql string, args []any, limit int, err error) {
 	limit = f.Limit
 	switch {
 	case limit == 0:
-		limit = DefaultCurveLimit
-	case limit < 0 || limit > MaxCurveLimit:
-		return "", nil, 0, FieldError("/limit", "limit must be between 1 and %d", MaxCurveLimit)
+		limit = lab.DefaultCurveLimit
+	case limit < 0 || limit > lab.MaxCurveLimit:
+		return "", nil, 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "limit", "limit must be between 1 and %d", lab.MaxCurveLimit)
 	}
-	if f.Status != "" && !slices.Contains([]string{StatusPendingReview, StatusApproved, StatusRejected}, f.Status) {
-		return "", nil, 0, FieldError("/status", "unknown status %q", f.Status)
+	if f.Status != "" && !slices.Contains([]string{lab.StatusPendingReview, lab.StatusApproved, lab.StatusRejected}, f.Status) {
+		return "", nil, 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "status", "unknown status %q", f.Status)
 	}
-	if f.Verdict != "" && f.Verdict != VerdictPass && f.Verdict != VerdictFail {
-		return "", nil, 0, FieldError("/verdict", "unknown verdict %q", f.Verdict)
+	if f.Verdict != "" && f.Verdict != lab.VerdictPass && f.Verdict != lab.VerdictFail {
+		return "", nil, 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "verdict", "unknown verdict %q", f.Verdict)
 	}
 	var where []string
 	add := func(cond string, v any) {
@@ -344,38 +265,38 @@ func curveQuery(f CurveFilter) (sql string, args []any, limit int, err error) {
 // with its audit row, in one transaction. A curve whose verdict is fail can be
 // approved only with a reason (KindInvalid otherwise); a curve already
 // reviewed is KindConflict, also when two reviews race.
-func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor string) (*Review, error) {
+func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor string) (*lab.Review, error) {
 	id, err := parseID("curve", id)
 	if err != nil {
 		return nil, err
 	}
-	status := map[string]string{DecisionApprove: StatusApproved, DecisionReject: StatusRejected}[decision]
+	status := map[string]string{lab.DecisionApprove: lab.StatusApproved, lab.DecisionReject: lab.StatusRejected}[decision]
 	if status == "" {
-		return nil, FieldError("/decision", "decision must be %q or %q", DecisionApprove, DecisionReject)
+		return nil, lab.FieldError("/decision", "decision must be %q or %q", lab.DecisionApprove, lab.DecisionReject)
 	}
 	reason = strings.TrimSpace(reason)
-	var rv *Review
+	var rv *lab.Review
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
 		var current, verdict string
 		err := tx.QueryRow(ctx, `SELECT status, verdict FROM curves WHERE id = $1 FOR UPDATE`, id).Scan(&current, &verdict)
 		if errors.Is(err, pgx.ErrNoRows) {
-			return Errorf(KindNotFound, "curve %s not found", id)
+			return lab.Errorf(lab.KindNotFound, "curve %s not found", id)
 		}
 		if err != nil {
 			return classify("select curve "+id, err)
 		}
-		if current != StatusPendingReview {
-			return Errorf(KindConflict, "curve %s was already reviewed: it is %s", id, current)
+		if current != lab.StatusPendingReview {
+			return lab.Errorf(lab.KindConflict, "curve %s was already reviewed: it is %s", id, current)
 		}
-		if decision == DecisionApprove && verdict == VerdictFail && reason == "" {
-			return FieldError("/reason", "a curve that failed its acceptance checks can be approved only with a reason")
+		if decision == lab.DecisionApprove && verdict == lab.VerdictFail && reason == "" {
+			return lab.FieldError("/reason", "a curve that failed its acceptance checks can be approved only with a reason")
 		}
-		rv = &Review{CurveID: id, Decision: decision, Reason: reason, Actor: actor}
+		rv = &lab.Review{CurveID: id, Decision: decision, Reason: reason, Actor: actor}
 		err = tx.QueryRow(ctx, `INSERT INTO reviews (curve_id, decision, reason, actor) VALUES ($1, $2, $3, $4) RETURNING at`,
 			id, decision, reason, actor).Scan(&rv.At)
 		if err != nil {
 			if pgCode(err) == codeUniqueViolation {
-				return &Error{Kind: KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
+				return &lab.Error{Kind: lab.KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
 			}
 			return classify("insert review", err)
 		}
@@ -383,7 +304,7 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 			id, status, rv.At, actor)
 		if err != nil {
 			if pgCode(err) == codeImmutable {
-				return &Error{Kind: KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
+				return &lab.Error{Kind: lab.KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
 			}
 			return classify("update curve status", err)
 		}
@@ -395,7 +316,7 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 		// The curve's results move with its review (provisional to
 		// releasable or withheld), in this transaction.
 		events := &eventBuffer{}
-		if _, err := refreshCurveResults(ctx, tx, id, CauseReview, events); err != nil {
+		if _, err := refreshCurveResults(ctx, tx, id, lab.CauseReview, events); err != nil {
 			return err
 		}
 		return flushEvents(ctx, tx, events)

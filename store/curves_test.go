@@ -9,6 +9,7 @@ import (
 	"testing"
 	"time"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -31,7 +32,7 @@ func TestGetCurveReturnsTheReportAsFitted(t *testing.T) {
 		t.Errorf("stored report differs from the fitted one:\n got %+v\nwant %+v", got.Report, curves[0].Report)
 	}
 	want := curves[0].Report
-	if got.Analyte != "nitrate" || got.Unit != "mg/L" || got.RunID != created.ID || got.Status != store.StatusPendingReview ||
+	if got.Analyte != "nitrate" || got.Unit != "mg/L" || got.RunID != created.ID || got.Status != lab.StatusPendingReview ||
 		got.Verdict != want.Verdict || got.EngineVersion != want.Engine || got.Model != want.Model || got.Review != nil {
 		t.Errorf("curve row = %+v", got.CurveSummary)
 	}
@@ -45,13 +46,13 @@ func TestGetCurveReturnsTheReportAsFitted(t *testing.T) {
 		t.Errorf("prediction from the stored report = %+v (%v), from the original %+v (%v)", p2, err2, p1, err1)
 	}
 	_, err = db.GetCurve(ctx, created.ID) // a run id is not a curve id
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 }
 
 // storeCurves stores n runs of two curves each: instruments ic-02 and ic-03
 // alternate, and acquisition times repeat every 4 runs, so many curves tie on
 // acquired_at and the id must break the ties.
-func storeCurves(t *testing.T, db *store.DB, m *store.Method, n int) {
+func storeCurves(t *testing.T, db *store.DB, m *lab.Method, n int) {
 	t.Helper()
 	for i := range n {
 		in, curves := runInput(m, baseTime.Add(time.Duration(i%4)*time.Hour))
@@ -63,9 +64,9 @@ func storeCurves(t *testing.T, db *store.DB, m *store.Method, n int) {
 }
 
 // allPages walks ListCurves from the first page to the last.
-func allPages(t *testing.T, db *store.DB, f store.CurveFilter) (ids []string, pages int) {
+func allPages(t *testing.T, db *store.DB, f lab.CurveFilter) (ids []string, pages int) {
 	t.Helper()
-	var last *store.CurveSummary
+	var last *lab.CurveSummary
 	for {
 		page, err := db.ListCurves(context.Background(), f)
 		if err != nil {
@@ -111,17 +112,17 @@ func TestListCurvesKeysetPagination(t *testing.T) {
 
 	tests := []struct {
 		name      string
-		filter    store.CurveFilter
+		filter    lab.CurveFilter
 		wantCount int
 		wantPages int
 	}{
-		{"all, pages of 7", store.CurveFilter{Limit: 7}, 50, 8},
-		{"all, pages of 50", store.CurveFilter{Limit: 50}, 50, 1},
-		{"all, pages of 1", store.CurveFilter{Limit: 1}, 50, 50},
-		{"ic-03 nitrate", store.CurveFilter{Instrument: "ic-03", Analyte: "nitrate", Limit: 5}, 12, 3},
-		{"time window", store.CurveFilter{From: baseTime.Add(time.Hour), To: baseTime.Add(3 * time.Hour), Limit: 5}, 24, 5},
-		{"pending review", store.CurveFilter{Status: store.StatusPendingReview, Limit: 9}, 50, 6},
-		{"failed", store.CurveFilter{Verdict: store.VerdictFail, Limit: 9}, 0, 1},
+		{"all, pages of 7", lab.CurveFilter{Limit: 7}, 50, 8},
+		{"all, pages of 50", lab.CurveFilter{Limit: 50}, 50, 1},
+		{"all, pages of 1", lab.CurveFilter{Limit: 1}, 50, 50},
+		{"ic-03 nitrate", lab.CurveFilter{Instrument: "ic-03", Analyte: "nitrate", Limit: 5}, 12, 3},
+		{"time window", lab.CurveFilter{From: baseTime.Add(time.Hour), To: baseTime.Add(3 * time.Hour), Limit: 5}, 24, 5},
+		{"pending review", lab.CurveFilter{Status: lab.StatusPendingReview, Limit: 9}, 50, 6},
+		{"failed", lab.CurveFilter{Verdict: lab.VerdictFail, Limit: 9}, 0, 1},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
@@ -143,7 +144,7 @@ func TestListCurvesKeysetPagination(t *testing.T) {
 	}
 
 	t.Run("curves stored between pages", func(t *testing.T) {
-		page1, err := db.ListCurves(ctx, store.CurveFilter{Limit: 10})
+		page1, err := db.ListCurves(ctx, lab.CurveFilter{Limit: 10})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -155,7 +156,7 @@ func TestListCurvesKeysetPagination(t *testing.T) {
 				t.Fatal(err)
 			}
 		}
-		ids, _ := allPages(t, db, store.CurveFilter{Limit: 10, Cursor: page1.NextCursor})
+		ids, _ := allPages(t, db, lab.CurveFilter{Limit: 10, Cursor: page1.NextCursor})
 		for _, c := range page1.Curves {
 			for _, id := range ids {
 				if id == c.ID {
@@ -173,20 +174,20 @@ func TestListCurvesKeysetPagination(t *testing.T) {
 
 	for _, bad := range []struct {
 		name   string
-		filter store.CurveFilter
+		filter lab.CurveFilter
 		field  string
 	}{
-		{"garbage cursor", store.CurveFilter{Cursor: "not a cursor"}, "/cursor"},
-		{"short cursor", store.CurveFilter{Cursor: "AAAA"}, "/cursor"},
-		{"limit too big", store.CurveFilter{Limit: store.MaxCurveLimit + 1}, "/limit"},
-		{"negative limit", store.CurveFilter{Limit: -1}, "/limit"},
-		{"unknown status", store.CurveFilter{Status: "done"}, "/status"},
-		{"unknown verdict", store.CurveFilter{Verdict: "ok'; DROP TABLE curves; --"}, "/verdict"},
+		{"garbage cursor", lab.CurveFilter{Cursor: "not a cursor"}, "/cursor"},
+		{"short cursor", lab.CurveFilter{Cursor: "AAAA"}, "/cursor"},
+		{"limit too big", lab.CurveFilter{Limit: lab.MaxCurveLimit + 1}, "/limit"},
+		{"negative limit", lab.CurveFilter{Limit: -1}, "/limit"},
+		{"unknown status", lab.CurveFilter{Status: "done"}, "/status"},
+		{"unknown verdict", lab.CurveFilter{Verdict: "ok'; DROP TABLE curves; --"}, "/verdict"},
 	} {
 		t.Run(bad.name, func(t *testing.T) {
 			_, err := db.ListCurves(ctx, bad.filter)
-			wantKind(t, err, store.KindInvalid)
-			if got := err.(*store.Error).Field; got != bad.field {
+			wantKind(t, err, lab.KindInvalid)
+			if got := err.(*lab.Error).Field; got != bad.field {
 				t.Errorf("field = %q, want %q", got, bad.field)
 			}
 		})
@@ -199,7 +200,7 @@ func TestReviewCurve(t *testing.T) {
 	m := mustMethod(t, db, "nitrate-ic")
 	in, curves := runInput(m, baseTime)
 	// Make the nitrite curve fail: only two levels.
-	var kept []store.Standard
+	var kept []lab.Standard
 	for _, s := range in.Standards {
 		if s.Analyte == "nitrate" || s.Level == "L1" || s.Level == "L6" {
 			kept = append(kept, s)
@@ -212,33 +213,33 @@ func TestReviewCurve(t *testing.T) {
 		t.Fatal(err)
 	}
 	passed, failed := created.Curves[0], created.Curves[1]
-	if passed.Verdict != store.VerdictPass || failed.Verdict != store.VerdictFail {
+	if passed.Verdict != lab.VerdictPass || failed.Verdict != lab.VerdictFail {
 		t.Fatalf("fixture verdicts %s and %s, want pass and fail", passed.Verdict, failed.Verdict)
 	}
 
-	rv, err := db.ReviewCurve(ctx, passed.ID, store.DecisionApprove, "", "qa-test")
-	if err != nil || rv.Decision != store.DecisionApprove || rv.At.IsZero() {
+	rv, err := db.ReviewCurve(ctx, passed.ID, lab.DecisionApprove, "", "qa-test")
+	if err != nil || rv.Decision != lab.DecisionApprove || rv.At.IsZero() {
 		t.Fatalf("approve = %+v, %v", rv, err)
 	}
 	got, err := db.GetCurve(ctx, passed.ID)
-	if err != nil || got.Status != store.StatusApproved || got.Review == nil || got.Review.Actor != "qa-test" ||
+	if err != nil || got.Status != lab.StatusApproved || got.Review == nil || got.Review.Actor != "qa-test" ||
 		got.ReviewedBy != "qa-test" || got.ReviewedAt == nil {
 		t.Errorf("approved curve = %+v, review %+v, %v", got.CurveSummary, got.Review, err)
 	}
-	_, err = db.ReviewCurve(ctx, passed.ID, store.DecisionReject, "second thoughts", "qa-other")
-	wantKind(t, err, store.KindConflict)
+	_, err = db.ReviewCurve(ctx, passed.ID, lab.DecisionReject, "second thoughts", "qa-other")
+	wantKind(t, err, lab.KindConflict)
 
-	_, err = db.ReviewCurve(ctx, failed.ID, store.DecisionApprove, "  ", "qa-test")
-	wantKind(t, err, store.KindInvalid)
-	if f := err.(*store.Error).Field; f != "/reason" {
+	_, err = db.ReviewCurve(ctx, failed.ID, lab.DecisionApprove, "  ", "qa-test")
+	wantKind(t, err, lab.KindInvalid)
+	if f := err.(*lab.Error).Field; f != "/reason" {
 		t.Errorf("field = %q, want /reason", f)
 	}
 	_, err = db.ReviewCurve(ctx, failed.ID, "maybe", "", "qa-test")
-	wantKind(t, err, store.KindInvalid)
-	_, err = db.ReviewCurve(ctx, "0190a1b2-0000-7000-8000-000000000000", store.DecisionApprove, "", "qa-test")
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindInvalid)
+	_, err = db.ReviewCurve(ctx, "0190a1b2-0000-7000-8000-000000000000", lab.DecisionApprove, "", "qa-test")
+	wantKind(t, err, lab.KindNotFound)
 
-	if _, err := db.ReviewCurve(ctx, failed.ID, store.DecisionApprove, "two levels suffice for this screening SOP", "qa-test"); err != nil {
+	if _, err := db.ReviewCurve(ctx, failed.ID, lab.DecisionApprove, "two levels suffice for this screening SOP", "qa-test"); err != nil {
 		t.Errorf("approving a failed curve with a reason: %v", err)
 	}
 
@@ -259,7 +260,7 @@ func TestReviewCurve(t *testing.T) {
 		t.Errorf("review audit = %+v %s", last, last.Detail)
 	}
 	_, err = db.ListAudit(ctx, created.ID)
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 }
 
 func TestConcurrentReviewsOneWins(t *testing.T) {
@@ -280,7 +281,7 @@ func TestConcurrentReviewsOneWins(t *testing.T) {
 		go func() {
 			defer wg.Done()
 			<-start
-			decision := []string{store.DecisionApprove, store.DecisionReject}[i%2]
+			decision := []string{lab.DecisionApprove, lab.DecisionReject}[i%2]
 			_, errs[i] = db.ReviewCurve(ctx, created.Curves[0].ID, decision, fmt.Sprintf("reviewer %d", i), fmt.Sprintf("qa-%d", i))
 		}()
 	}
@@ -292,7 +293,7 @@ func TestConcurrentReviewsOneWins(t *testing.T) {
 			wins++
 			continue
 		}
-		wantKind(t, err, store.KindConflict)
+		wantKind(t, err, lab.KindConflict)
 	}
 	if wins != 1 || count(t, db, "reviews") != 1 {
 		t.Errorf("%d reviews succeeded (%d stored), want exactly 1", wins, count(t, db, "reviews"))

@@ -9,36 +9,8 @@ import (
 
 	"github.com/jackc/pgx/v5"
 
-	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
-
-// ActionCurveExclude is the audit action, on the original curve, of an
-// exclusion revision.
-const ActionCurveExclude = "curve.exclusion"
-
-// RevisionInput is an exclusion revision of a curve, planned and refitted by
-// the caller (PlanExclusion, then calib.Fit with the original's method
-// revision) before the transaction opens: the original's readings are
-// immutable, so the refit stays valid.
-type RevisionInput struct {
-	OriginalID  string
-	Report      *calib.Report   // the refit, with the excluded readings marked
-	Excluded    []ExcludedPoint // every reading the revision excludes
-	Reason      string
-	RangeReason string // "" when none was given
-	Actor       string
-}
-
-// Exclusion records why a revision left readings out.
-type Exclusion struct {
-	CurveID     string // the revision
-	RevisionOf  string // the original
-	Points      []ExcludedPoint
-	Reason      string
-	RangeReason string
-	Actor       string
-	At          time.Time
-}
 
 // CreateRevision stores a new curve refitted without some readings of
 // in.OriginalID, linked to it by revision_of, and in the same transaction:
@@ -48,14 +20,14 @@ type Exclusion struct {
 // (state_changed events). The original is never changed. Only the current
 // curve of a chain can be revised (KindConflict naming the rule otherwise).
 // It returns the revision's id.
-func (db *DB) CreateRevision(ctx context.Context, in RevisionInput) (string, error) {
+func (db *DB) CreateRevision(ctx context.Context, in lab.RevisionInput) (string, error) {
 	origID, err := parseID("curve", in.OriginalID)
 	if err != nil {
 		return "", err
 	}
 	in.Reason = strings.TrimSpace(in.Reason)
 	if in.Reason == "" {
-		return "", FieldError("/reason", "an exclusion needs a reason")
+		return "", lab.FieldError("/reason", "an exclusion needs a reason")
 	}
 	if in.Report == nil {
 		return "", errors.New("store: revision without a report")
@@ -75,7 +47,7 @@ func (db *DB) CreateRevision(ctx context.Context, in RevisionInput) (string, err
 SELECT run_id, method, method_revision, instrument, analyte, unit, acquired_at FROM curves WHERE id = $1 FOR UPDATE`,
 			origID).Scan(&runID, &method, &revision, &instrument, &analyte, &unit, &acquired)
 		if errors.Is(err, pgx.ErrNoRows) {
-			return Errorf(KindNotFound, "curve %s not found", origID)
+			return lab.Errorf(lab.KindNotFound, "curve %s not found", origID)
 		}
 		if err != nil {
 			return classify("lock curve "+origID, err)
@@ -83,12 +55,12 @@ SELECT run_id, method, method_revision, instrument, analyte, unit, acquired_at F
 		var existing string
 		err = tx.QueryRow(ctx, `SELECT curve_id::text FROM exclusions WHERE revision_of = $1`, origID).Scan(&existing)
 		if err == nil {
-			return Errorf(KindConflict, "rule %s: curve %s was already revised as %s; exclude from the revision", RuleCurveIsCurrent, origID, existing)
+			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s was already revised as %s; exclude from the revision", lab.RuleCurveIsCurrent, origID, existing)
 		}
 		if !errors.Is(err, pgx.ErrNoRows) {
 			return classify("select revision of "+origID, err)
 		}
-		pc, err := prepareCurve(CurveInput{Analyte: analyte, Unit: unit, Report: in.Report})
+		pc, err := prepareCurve(lab.CurveInput{Analyte: analyte, Unit: unit, Report: in.Report})
 		if err != nil {
 			return err
 		}
@@ -110,17 +82,17 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 		if _, err := tx.Exec(ctx, `INSERT INTO exclusions (curve_id, revision_of, points, reason, range_reason, actor) VALUES ($1, $2, $3, $4, $5, $6)`,
 			pc.id, origID, points, in.Reason, rangeReason, in.Actor); err != nil {
 			if pgCode(err) == codeUniqueViolation {
-				return &Error{Kind: KindConflict, Message: "rule " + RuleCurveIsCurrent + ": curve " + origID + " was revised concurrently", Err: err}
+				return &lab.Error{Kind: lab.KindConflict, In: lab.InPath, Field: "/id", Message: "rule " + lab.RuleCurveIsCurrent + ": curve " + origID + " was revised concurrently", Err: err}
 			}
 			return classify("insert exclusion", err)
 		}
-		if err := writeAudit(ctx, tx, in.Actor, ActionCurveExclude, entityCurve, origID, map[string]any{
+		if err := writeAudit(ctx, tx, in.Actor, lab.ActionCurveExclude, entityCurve, origID, map[string]any{
 			"revision": pc.id, "points": in.Excluded, "reason": in.Reason, "range_reason": rangeReason, "verdict": pc.verdict,
 		}); err != nil {
 			return err
 		}
 		if err := writeAudit(ctx, tx, in.Actor, ActionCurveCreate, entityCurve, pc.id, map[string]any{
-			"run_id": runID, "revision_of": origID, "analyte": analyte, "verdict": pc.verdict, "status": StatusPendingReview,
+			"run_id": runID, "revision_of": origID, "analyte": analyte, "verdict": pc.verdict, "status": lab.StatusPendingReview,
 			"model": pc.model, "weighting": pc.weighting, "engine_version": pc.engine,
 		}); err != nil {
 			return err
@@ -130,10 +102,10 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 			return err
 		}
 		events := &eventBuffer{}
-		if err := insertResults(ctx, tx, runID, pending, in.Actor, CauseExclusion, events); err != nil {
+		if err := insertResults(ctx, tx, runID, pending, in.Actor, lab.CauseExclusion, events); err != nil {
 			return err
 		}
-		if _, err := refreshCurveResults(ctx, tx, origID, CauseExclusion, events); err != nil {
+		if _, err := refreshCurveResults(ctx, tx, origID, lab.CauseExclusion, events); err != nil {
 			return err
 		}
 		return flushEvents(ctx, tx, events)
@@ -154,7 +126,7 @@ WHERE s.run_id = $1 AND s.analyte = $2 ORDER BY s.position`, runID, analyte)
 	if err != nil {
 		return nil, classify("select samples for revision", err)
 	}
-	f := &curveFacts{ID: pc.id, Status: StatusPendingReview, Verdict: pc.verdict, Fitted: pc.scalars.slope != nil, FailedChecks: pc.failed}
+	f := &lab.CurveFacts{ID: pc.id, Status: lab.StatusPendingReview, Verdict: pc.verdict, Fitted: pc.scalars.slope != nil, FailedChecks: pc.failed}
 	var (
 		out       []pendingResult
 		position  int
@@ -163,9 +135,9 @@ WHERE s.run_id = $1 AND s.analyte = $2 ORDER BY s.position`, runID, analyte)
 		at        time.Time
 	)
 	_, err = pgx.ForEachRow(rows, []any{&position, &responses, &dilution, &at}, func() error {
-		state, reason := releaseOf(f, at)
+		state, reason := lab.ReleaseOf(f, at)
 		out = append(out, pendingResult{position: position, curveID: pc.id, unit: unit, acquiredAt: at,
-			q: quantify(pc.in.Report, responses, dilution), state: state, reason: reason})
+			q: lab.Quantify(pc.in.Report, responses, dilution), state: state, reason: reason})
 		return nil
 	})
 	if err != nil {
@@ -176,18 +148,18 @@ WHERE s.run_id = $1 AND s.analyte = $2 ORDER BY s.position`, runID, analyte)
 
 // GetExclusion returns the exclusion that made revision id; KindNotFound
 // for a curve that is not a revision.
-func (db *DB) GetExclusion(ctx context.Context, id string) (*Exclusion, error) {
+func (db *DB) GetExclusion(ctx context.Context, id string) (*lab.Exclusion, error) {
 	id, err := parseID("curve", id)
 	if err != nil {
 		return nil, err
 	}
-	e := &Exclusion{CurveID: id}
+	e := &lab.Exclusion{CurveID: id}
 	var points []byte
 	var rr *string
 	err = db.Pool.QueryRow(ctx, `SELECT revision_of, points, reason, range_reason, actor, at FROM exclusions WHERE curve_id = $1`, id).
 		Scan(&e.RevisionOf, &points, &e.Reason, &rr, &e.Actor, &e.At)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "curve %s is not an exclusion revision", id)
+		return nil, lab.Errorf(lab.KindNotFound, "curve %s is not an exclusion revision", id)
 	}
 	if err != nil {
 		return nil, classify("select exclusion "+id, err)

@@ -4,6 +4,8 @@ import (
 	"context"
 	"testing"
 	"time"
+
+	"curvekeeper/lab"
 )
 
 // HoldRunWrites keeps CreateRun's writes queued: the calls made until
@@ -48,7 +50,7 @@ func RunWriteCounts(db *DB) (grouped, alone int64) {
 
 // CreateRunAlone is CreateRun written in a transaction of its own, never in
 // a group.
-func CreateRunAlone(ctx context.Context, db *DB, in RunInput, curves []CurveInput) (*RunCreated, error) {
+func CreateRunAlone(ctx context.Context, db *DB, in lab.RunInput, curves []lab.CurveInput) (*lab.RunCreated, error) {
 	w, created, err := prepareRun(ctx, in, curves)
 	if err != nil {
 		return nil, err

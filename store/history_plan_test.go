@@ -6,7 +6,7 @@ import (
 	"testing"
 	"time"
 
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // TestHistoryQueryUsesIndexes loads 100,000 curves with SQL (one run, 40
@@ -42,33 +42,33 @@ FROM generate_series(1, 100000) g`, created.ID, m.Name, baseTime)
 		t.Fatal(err)
 	}
 	// A cursor deep in the history of ic-7 nitrite.
-	deep, err := db.ListCurves(ctx, store.CurveFilter{Instrument: "ic-7", Analyte: "nitrite", Limit: 500})
+	deep, err := db.ListCurves(ctx, lab.CurveFilter{Instrument: "ic-7", Analyte: "nitrite", Limit: 500})
 	if err != nil || deep.NextCursor == "" {
 		t.Fatalf("ListCurves for a cursor: %v (cursor %q)", err, deep.NextCursor)
 	}
 
 	// Cursors are bound to their filters: the unfiltered history needs its own.
-	deepAll, err := db.ListCurves(ctx, store.CurveFilter{Limit: 500})
+	deepAll, err := db.ListCurves(ctx, lab.CurveFilter{Limit: 500})
 	if err != nil || deepAll.NextCursor == "" {
 		t.Fatalf("ListCurves for an unfiltered cursor: %v (cursor %q)", err, deepAll.NextCursor)
 	}
-	if _, err := db.ListCurves(ctx, store.CurveFilter{Cursor: deep.NextCursor}); store.KindOf(err) != store.KindInvalid {
+	if _, err := db.ListCurves(ctx, lab.CurveFilter{Cursor: deep.NextCursor}); lab.KindOf(err) != lab.KindInvalid {
 		t.Errorf("a cursor issued for ic-7 nitrite was accepted without those filters: err %v", err)
 	}
 
 	tests := []struct {
 		name      string
-		filter    store.CurveFilter
+		filter    lab.CurveFilter
 		wantIndex string
 	}{
-		{"instrument and analyte, page 1", store.CurveFilter{Instrument: "ic-7", Analyte: "nitrite"}, "curves_history"},
-		{"instrument and analyte, deep cursor", store.CurveFilter{Instrument: "ic-7", Analyte: "nitrite", Cursor: deep.NextCursor}, "curves_history"},
-		{"instrument, analyte and status", store.CurveFilter{Instrument: "ic-7", Analyte: "nitrite", Status: store.StatusApproved}, "curves_approved_history"}, // the partial index of migration 000003
-		{"instrument, analyte and window", store.CurveFilter{Instrument: "ic-7", Analyte: "nitrite",
+		{"instrument and analyte, page 1", lab.CurveFilter{Instrument: "ic-7", Analyte: "nitrite"}, "curves_history"},
+		{"instrument and analyte, deep cursor", lab.CurveFilter{Instrument: "ic-7", Analyte: "nitrite", Cursor: deep.NextCursor}, "curves_history"},
+		{"instrument, analyte and status", lab.CurveFilter{Instrument: "ic-7", Analyte: "nitrite", Status: lab.StatusApproved}, "curves_approved_history"}, // the partial index of migration 000003
+		{"instrument, analyte and window", lab.CurveFilter{Instrument: "ic-7", Analyte: "nitrite",
 			From: baseTime.Add(-30 * 24 * time.Hour), To: baseTime.Add(-20 * 24 * time.Hour)}, "curves_history"},
-		{"everything, page 1", store.CurveFilter{}, "curves_recent"},
-		{"everything, deep cursor", store.CurveFilter{Cursor: deepAll.NextCursor}, "curves_recent"},
-		{"review queue", store.CurveFilter{Status: store.StatusPendingReview}, "curves_pending"},
+		{"everything, page 1", lab.CurveFilter{}, "curves_recent"},
+		{"everything, deep cursor", lab.CurveFilter{Cursor: deepAll.NextCursor}, "curves_recent"},
+		{"review queue", lab.CurveFilter{Status: lab.StatusPendingReview}, "curves_pending"},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {

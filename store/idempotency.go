@@ -4,6 +4,8 @@ import (
 	"context"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // Idempotency keys are scoped to the token that used them (primary key
@@ -23,7 +25,7 @@ RETURNING true`
 
 // errKeyReused is the refusal of a key used before with another body.
 func errKeyReused() error {
-	return &Error{Kind: KindInvalid, Field: "/headers/Idempotency-Key", Message: "Idempotency-Key reused with a different body"}
+	return &lab.Error{Kind: lab.KindInvalid, In: lab.InHeader, Field: "/Idempotency-Key", Message: "Idempotency-Key reused with a different body"}
 }
 
 // rowQuerier is what storedRun needs of a pool or a transaction.
@@ -34,7 +36,7 @@ type rowQuerier interface {
 // storedRun returns the response stored under (tokenID, key) with Replayed
 // set: KindNotFound when the key is unused, KindInvalid when it was used with
 // another request hash.
-func storedRun(ctx context.Context, q rowQuerier, tokenID, key string, requestHash []byte) (*RunCreated, error) {
+func storedRun(ctx context.Context, q rowQuerier, tokenID, key string, requestHash []byte) (*lab.RunCreated, error) {
 	return decodeStoredRun(q.QueryRow(ctx, sqlSelectKey, tokenID, key), requestHash)
 }
 
@@ -42,7 +44,7 @@ func storedRun(ctx context.Context, q rowQuerier, tokenID, key string, requestHa
 // can answer a retry without fitting again: KindNotFound when the key is
 // unused, KindInvalid when it was used with a different request hash.
 // CreateRun makes the same decision race-free; this is only a shortcut.
-func (db *DB) LookupIdempotency(ctx context.Context, tokenID, key string, requestHash []byte) (*RunCreated, error) {
+func (db *DB) LookupIdempotency(ctx context.Context, tokenID, key string, requestHash []byte) (*lab.RunCreated, error) {
 	tokenID, err := parseID("token", tokenID)
 	if err != nil {
 		return nil, err

@@ -4,6 +4,8 @@ import (
 	"fmt"
 
 	"github.com/google/uuid"
+
+	"curvekeeper/lab"
 )
 
 // newID returns a new identifier for a run, curve or token: a UUIDv7, whose
@@ -23,7 +25,7 @@ func newID() (string, error) {
 func parseID(what, s string) (string, error) {
 	id, err := uuid.Parse(s)
 	if err != nil {
-		return "", Errorf(KindNotFound, "%s %q not found", what, s)
+		return "", lab.Errorf(lab.KindNotFound, "%s %q not found", what, s)
 	}
 	return id.String(), nil
 }

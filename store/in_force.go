@@ -8,21 +8,13 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // inForceScan bounds how many of the newest curves CurveInForce examines
 // before it gives up looking for a usable one.
 const inForceScan = 200
-
-// InForce is the curve that applied to an instrument and analyte at a moment.
-type InForce struct {
-	Curve     CurveSummary
-	Basis     string     // why this curve, in words
-	ExpiresAt *time.Time // nil when the method sets no maximum age
-	// LastVerification is the latest verification of the curve at or before
-	// the moment; nil when none.
-	LastVerification *Verification
-}
 
 // CurveInForce returns the curve in force for instrument and analyte at
 // moment at: among the curves acquired at or before at that are current (not
@@ -32,8 +24,8 @@ type InForce struct {
 // A newer usable curve supersedes every older one. When the method sets a
 // maximum age and the chosen curve is older than that at at, there is no
 // curve in force. KindNotFound says why there is none, in words.
-func (db *DB) CurveInForce(ctx context.Context, instrument, analyte string, at time.Time) (*InForce, error) {
-	var out *InForce
+func (db *DB) CurveInForce(ctx context.Context, instrument, analyte string, at time.Time) (*lab.InForce, error) {
+	var out *lab.InForce
 	err := db.readOnly(ctx, "curve in force", func(tx pgx.Tx) error {
 		rows, err := tx.Query(ctx, `
 SELECT `+prefixed("c.", curveColumns)+`, m.qc
@@ -46,8 +38,8 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 			return classify("select candidate curves", err)
 		}
 		type candidate struct {
-			c  CurveSummary
-			qc QCPolicy
+			c  lab.CurveSummary
+			qc lab.QCPolicy
 		}
 		cands, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (candidate, error) {
 			var raw []byte
@@ -55,11 +47,11 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 			if err != nil {
 				return candidate{}, err
 			}
-			var qc QCPolicy
+			var qc lab.QCPolicy
 			if err := json.Unmarshal(raw, &qc); err != nil {
 				return candidate{}, fmt.Errorf("decode qc: %w", err)
 			}
-			return candidate{c, qc.withDefaults()}, nil
+			return candidate{c, qc.WithDefaults()}, nil
 		})
 		if err != nil {
 			return classify("scan candidate curves", err)
@@ -69,24 +61,24 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 			c := k.c
 			var basis string
 			switch {
-			case c.Status == StatusApproved:
+			case c.Status == lab.StatusApproved:
 				basis = fmt.Sprintf("curve %s, acquired %s, is the newest current curve approved for %s on %s at that moment (approved by %s)",
 					c.ID, stamp(c.AcquiredAt), analyte, instrument, c.ReviewedBy)
-			case c.Status == StatusPendingReview && c.Verdict == VerdictPass && c.Slope != nil && k.qc.PendingCurvesInForce:
+			case c.Status == lab.StatusPendingReview && c.Verdict == lab.VerdictPass && c.Slope != nil && k.qc.PendingCurvesInForce:
 				basis = fmt.Sprintf("curve %s, acquired %s, passed its checks and awaits review; method %s revision %d lets such a curve be in force",
 					c.ID, stamp(c.AcquiredAt), c.Method, c.MethodRevision)
-			case c.Status == StatusPendingReview && c.Verdict == VerdictPass:
+			case c.Status == lab.StatusPendingReview && c.Verdict == lab.VerdictPass:
 				skipped = append(skipped, fmt.Sprintf("curve %s (acquired %s) awaits review and method %s revision %d keeps pending curves out of force", c.ID, stamp(c.AcquiredAt), c.Method, c.MethodRevision))
 				continue
 			default:
 				skipped = append(skipped, fmt.Sprintf("curve %s (acquired %s) failed its checks and was not approved", c.ID, stamp(c.AcquiredAt)))
 				continue
 			}
-			in := &InForce{Curve: c, Basis: basis}
+			in := &lab.InForce{Curve: c, Basis: basis}
 			if age := k.qc.MaxAge(); age > 0 {
 				exp := c.AcquiredAt.Add(age).UTC()
 				if at.After(exp) {
-					return Errorf(KindNotFound, "no curve in force for %s on %s at %s: the newest usable curve %s, acquired %s, expired at %s (method %s revision %d allows curves %g hours old)",
+					return lab.Errorf(lab.KindNotFound, "no curve in force for %s on %s at %s: the newest usable curve %s, acquired %s, expired at %s (method %s revision %d allows curves %g hours old)",
 						analyte, instrument, stamp(at), c.ID, stamp(c.AcquiredAt), stamp(exp), c.Method, c.MethodRevision, k.qc.MaxCurveAgeHours)
 				}
 				in.ExpiresAt = &exp
@@ -105,7 +97,7 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 		if len(skipped) > 0 {
 			why = strings.Join(skipped, "; ")
 		}
-		return Errorf(KindNotFound, "no curve in force for %s on %s at %s: %s", analyte, instrument, stamp(at), why)
+		return lab.Errorf(lab.KindNotFound, "no curve in force for %s on %s at %s: %s", analyte, instrument, stamp(at), why)
 	})
 	if err != nil {
 		return nil, err
@@ -115,7 +107,7 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 
 // lastVerification returns the latest verification of curveID at or before
 // at; ok is false when there is none.
-func lastVerification(ctx context.Context, tx pgx.Tx, curveID string, at time.Time) (v Verification, ok bool, err error) {
+func lastVerification(ctx context.Context, tx pgx.Tx, curveID string, at time.Time) (v lab.Verification, ok bool, err error) {
 	rows, err := tx.Query(ctx, `
 SELECT id, curve_id, kind, level, concentration, responses, found, recovery_pct, difference_pct, limit_pct, passed,
        detail, at, created_at, created_by
@@ -123,8 +115,8 @@ FROM verifications WHERE curve_id = $1 AND at <= $2 ORDER BY at DESC, id DESC LI
 	if err != nil {
 		return v, false, classify("select last verification", err)
 	}
-	vs, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (Verification, error) {
-		var v Verification
+	vs, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.Verification, error) {
+		var v lab.Verification
 		err := row.Scan(&v.ID, &v.CurveID, &v.Kind, &v.Level, &v.Concentration, &v.Responses, &v.Found, &v.RecoveryPct,
 			&v.DifferencePct, &v.LimitPct, &v.Passed, &v.Detail, &v.At, &v.CreatedAt, &v.CreatedBy)
 		return v, err

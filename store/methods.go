@@ -5,138 +5,15 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"math"
 	"reflect"
 	"slices"
-	"strings"
 	"sync"
-	"time"
 
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
-
-// Analyte is one analyte a method measures, with its unit (a UCUM code).
-type Analyte struct {
-	Name string `json:"name"`
-	Unit string `json:"unit"`
-}
-
-// MethodInput is a method as an administrator defines it. Acceptance must be
-// complete: the api fills every threshold the request leaves out from
-// calib.DefaultPolicy() before calling CreateMethod.
-type MethodInput struct {
-	Name       string
-	Model      calib.Model
-	Weighting  calib.Weighting
-	Confidence float64 // two-sided, in (0, 1)
-	Analytes   []Analyte
-	Acceptance calib.Policy
-	QC         QCPolicy // zero fields take DefaultQCPolicy's values
-	// Weights configures weighting and the σ of LOD/LOQ; zero fields take
-	// calib.DefaultWeightOptions' values.
-	Weights calib.WeightOptions
-	// Description is the administrator's free text about the method.
-	Description string
-}
-
-// Method is one stored revision of a method.
-type Method struct {
-	Name        string
-	Revision    int
-	Model       calib.Model
-	Weighting   calib.Weighting
-	Confidence  float64
-	Analytes    []Analyte
-	Acceptance  calib.Policy
-	QC          QCPolicy
-	Weights     calib.WeightOptions // every field filled
-	Description string
-	CreatedAt   time.Time
-	CreatedBy   string
-}
-
-// Options returns the engine options this method revision fits with.
-func (m *Method) Options() calib.Options {
-	return calib.Options{Model: m.Model, Weighting: m.Weighting, Confidence: m.Confidence, Policy: m.Acceptance, Weights: m.Weights}
-}
-
-// Analyte returns the method's analyte called name.
-func (m *Method) Analyte(name string) (Analyte, bool) {
-	for _, a := range m.Analytes {
-		if a.Name == name {
-			return a, true
-		}
-	}
-	return Analyte{}, false
-}
-
-var (
-	models     = []calib.Model{calib.Linear, calib.LinearOrigin, calib.Quadratic}
-	weightings = calib.Weightings()
-)
-
-// weightOptionsWithDefaults fills the zero fields of o from
-// calib.DefaultWeightOptions (revisions stored before the options existed
-// read '{}').
-func weightOptionsWithDefaults(o calib.WeightOptions) calib.WeightOptions {
-	d := calib.DefaultWeightOptions()
-	if o.MinReplicates == 0 {
-		o.MinReplicates = d.MinReplicates
-	}
-	if o.LimitSigma == "" {
-		o.LimitSigma = d.LimitSigma
-	}
-	return o
-}
-
-func checkMethod(in MethodInput) error {
-	if strings.TrimSpace(in.Name) == "" || len(in.Name) > 200 {
-		return FieldError("/name", "name must be 1 to 200 characters")
-	}
-	if !slices.Contains(models, in.Model) {
-		return FieldError("/model", "unknown model %q", in.Model)
-	}
-	if !slices.Contains(weightings, in.Weighting) {
-		return FieldError("/weighting", "unknown weighting %q", in.Weighting)
-	}
-	if !(in.Confidence > 0 && in.Confidence < 1) {
-		return FieldError("/confidence", "confidence must be between 0 and 1, exclusive")
-	}
-	if len(in.Analytes) == 0 {
-		return FieldError("/analytes", "at least one analyte is required")
-	}
-	seen := map[string]bool{}
-	for i, a := range in.Analytes {
-		if strings.TrimSpace(a.Name) == "" {
-			return FieldError(fmt.Sprintf("/analytes/%d/name", i), "analyte name is required")
-		}
-		if strings.TrimSpace(a.Unit) == "" {
-			return FieldError(fmt.Sprintf("/analytes/%d/unit", i), "unit is required")
-		}
-		if seen[a.Name] {
-			return FieldError(fmt.Sprintf("/analytes/%d/name", i), "analyte %q is listed twice", a.Name)
-		}
-		seen[a.Name] = true
-	}
-	if err := in.QC.check(); err != nil {
-		return err
-	}
-	if in.Weights.MinReplicates < 2 || in.Weights.MinReplicates > 1000 {
-		return FieldError("/weighting_options/min_replicates", "min_replicates must be 2 to 1000, got %d", in.Weights.MinReplicates)
-	}
-	if !slices.Contains(calib.SigmaBases(), in.Weights.LimitSigma) {
-		return FieldError("/weighting_options/limit_sigma", "unknown σ basis %q", in.Weights.LimitSigma)
-	}
-	v := reflect.ValueOf(in.Acceptance)
-	for i := 0; i < v.NumField(); i++ {
-		if f := v.Field(i); f.Kind() == reflect.Float64 && (math.IsNaN(f.Float()) || math.IsInf(f.Float(), 0)) {
-			return FieldError("/acceptance", "%s must be a finite number", v.Type().Field(i).Name)
-		}
-	}
-	return nil
-}
 
 // normalisePolicy passes p through its stored JSON form, so that a policy
 // compares equal to the one it is stored as.
@@ -157,10 +34,10 @@ func normalisePolicy(p calib.Policy) (calib.Policy, []byte, error) {
 // in every field, nothing is written and that revision is returned with
 // created false. Concurrent calls for one name are serialised by an
 // advisory lock, so revisions are numbered without gaps or duplicates.
-func (db *DB) CreateMethod(ctx context.Context, in MethodInput, actor string) (m *Method, created bool, err error) {
-	in.QC = in.QC.withDefaults()
-	in.Weights = weightOptionsWithDefaults(in.Weights)
-	if err := checkMethod(in); err != nil {
+func (db *DB) CreateMethod(ctx context.Context, in lab.MethodInput, actor string) (m *lab.Method, created bool, err error) {
+	in.QC = in.QC.WithDefaults()
+	in.Weights = lab.WeightOptionsWithDefaults(in.Weights)
+	if err := lab.CheckMethod(in); err != nil {
 		return nil, false, err
 	}
 	qcJSON, err := json.Marshal(in.QC)
@@ -223,11 +100,11 @@ RETURNING `+methodColumns,
 	return m, created, nil
 }
 
-func sameMethod(m *Method, in MethodInput) bool {
+func sameMethod(m *lab.Method, in lab.MethodInput) bool {
 	return m.Model == in.Model && m.Weighting == in.Weighting && m.Confidence == in.Confidence &&
 		m.Description == in.Description &&
 		slices.Equal(m.Analytes, in.Analytes) && reflect.DeepEqual(m.Acceptance, in.Acceptance) &&
-		m.QC.equal(in.QC) && m.Weights == in.Weights
+		m.QC.Equal(in.QC) && m.Weights == in.Weights
 }
 
 const (
@@ -235,7 +112,7 @@ const (
 	sqlSelectMethod = `SELECT ` + methodColumns + ` FROM methods`
 )
 
-func scanMethod(row pgx.Row) (*Method, error) {
+func scanMethod(row pgx.Row) (*lab.Method, error) {
 	return scanMethodVia(row, nil)
 }
 
@@ -246,7 +123,7 @@ func scanMethod(row pgx.Row) (*Method, error) {
 // still read, so a new revision is seen at once.
 type methodDecodes struct {
 	mu sync.Mutex
-	m  map[methodKey]*Method
+	m  map[methodKey]*lab.Method
 }
 
 type methodKey struct {
@@ -260,9 +137,9 @@ const maxMethodDecodes = 1024
 
 // scanMethodVia is scanMethod taking the decoded JSON columns from cache
 // when it holds the revision; cache may be nil.
-func scanMethodVia(row pgx.Row, cache *methodDecodes) (*Method, error) {
+func scanMethodVia(row pgx.Row, cache *methodDecodes) (*lab.Method, error) {
 	var (
-		m                    Method
+		m                    lab.Method
 		model, weighting     string
 		analytes, acceptance []byte
 		qc, weights          []byte
@@ -293,17 +170,17 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*Method, error) {
 	if err := json.Unmarshal(qc, &m.QC); err != nil {
 		return nil, fmt.Errorf("decode qc of method %s/%d: %w", m.Name, m.Revision, err)
 	}
-	m.QC = m.QC.withDefaults()
+	m.QC = m.QC.WithDefaults()
 	if err := json.Unmarshal(weights, &m.Weights); err != nil {
 		return nil, fmt.Errorf("decode weighting options of method %s/%d: %w", m.Name, m.Revision, err)
 	}
-	m.Weights = weightOptionsWithDefaults(m.Weights)
+	m.Weights = lab.WeightOptionsWithDefaults(m.Weights)
 	if cache != nil {
 		c := m
 		c.Analytes, c.Acceptance.Mandatory = slices.Clone(m.Analytes), slices.Clone(m.Acceptance.Mandatory)
 		cache.mu.Lock()
 		if cache.m == nil || len(cache.m) >= maxMethodDecodes {
-			cache.m = map[methodKey]*Method{}
+			cache.m = map[methodKey]*lab.Method{}
 		}
 		cache.m[key] = &c
 		cache.mu.Unlock()
@@ -312,10 +189,10 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*Method, error) {
 }
 
 // GetMethod returns the latest revision of method name.
-func (db *DB) GetMethod(ctx context.Context, name string) (*Method, error) {
+func (db *DB) GetMethod(ctx context.Context, name string) (*lab.Method, error) {
 	m, err := scanMethod(db.Pool.QueryRow(ctx, sqlSelectMethod+` WHERE name = $1 ORDER BY revision DESC LIMIT 1`, name))
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "method %q not found", name)
+		return nil, lab.Errorf(lab.KindNotFound, "method %q not found", name)
 	}
 	if err != nil {
 		return nil, classify("select method "+name, err)
@@ -324,10 +201,10 @@ func (db *DB) GetMethod(ctx context.Context, name string) (*Method, error) {
 }
 
 // GetMethodRevision returns revision rev of method name.
-func (db *DB) GetMethodRevision(ctx context.Context, name string, rev int) (*Method, error) {
+func (db *DB) GetMethodRevision(ctx context.Context, name string, rev int) (*lab.Method, error) {
 	m, err := scanMethod(db.Pool.QueryRow(ctx, sqlSelectMethod+` WHERE name = $1 AND revision = $2`, name, rev))
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "method %q revision %d not found", name, rev)
+		return nil, lab.Errorf(lab.KindNotFound, "method %q revision %d not found", name, rev)
 	}
 	if err != nil {
 		return nil, classify(fmt.Sprintf("select method %s/%d", name, rev), err)
@@ -336,15 +213,15 @@ func (db *DB) GetMethodRevision(ctx context.Context, name string, rev int) (*Met
 }
 
 // ListMethods returns the latest revision of every method, by name.
-func (db *DB) ListMethods(ctx context.Context) ([]Method, error) {
+func (db *DB) ListMethods(ctx context.Context) ([]lab.Method, error) {
 	rows, err := db.Pool.Query(ctx, `SELECT DISTINCT ON (name) `+methodColumns+` FROM methods ORDER BY name, revision DESC`)
 	if err != nil {
 		return nil, classify("list methods", err)
 	}
-	methods, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (Method, error) {
+	methods, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.Method, error) {
 		m, err := scanMethod(row)
 		if err != nil {
-			return Method{}, err
+			return lab.Method{}, err
 		}
 		return *m, nil
 	})

@@ -9,7 +9,7 @@ import (
 	"testing"
 
 	"curvekeeper/calib"
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 func TestCreateMethodRevisions(t *testing.T) {
@@ -63,9 +63,9 @@ func TestCreateMethodRevisions(t *testing.T) {
 	}
 
 	_, err = db.GetMethod(ctx, "no-such-method")
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 	_, err = db.GetMethodRevision(ctx, "nitrate-ic", 3)
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 
 	var audits int
 	if err := db.Pool.QueryRow(ctx, `SELECT count(*) FROM audit WHERE entity_type = 'method'`).Scan(&audits); err != nil {
@@ -114,24 +114,24 @@ func TestCreateMethodRefusesBadInput(t *testing.T) {
 	db := newDB(t)
 	tests := []struct {
 		name   string
-		change func(*store.MethodInput)
+		change func(*lab.MethodInput)
 		field  string
 	}{
-		{"empty name", func(m *store.MethodInput) { m.Name = "" }, "/name"},
-		{"unknown model", func(m *store.MethodInput) { m.Model = "cubic" }, "/model"},
-		{"unknown weighting", func(m *store.MethodInput) { m.Weighting = "1/z" }, "/weighting"},
-		{"confidence 1", func(m *store.MethodInput) { m.Confidence = 1 }, "/confidence"},
-		{"no analytes", func(m *store.MethodInput) { m.Analytes = nil }, "/analytes"},
-		{"analyte twice", func(m *store.MethodInput) { m.Analytes[1].Name = m.Analytes[0].Name }, "/analytes/1/name"},
-		{"no unit", func(m *store.MethodInput) { m.Analytes[0].Unit = "" }, "/analytes/0/unit"},
+		{"empty name", func(m *lab.MethodInput) { m.Name = "" }, "/name"},
+		{"unknown model", func(m *lab.MethodInput) { m.Model = "cubic" }, "/model"},
+		{"unknown weighting", func(m *lab.MethodInput) { m.Weighting = "1/z" }, "/weighting"},
+		{"confidence 1", func(m *lab.MethodInput) { m.Confidence = 1 }, "/confidence"},
+		{"no analytes", func(m *lab.MethodInput) { m.Analytes = nil }, "/analytes"},
+		{"analyte twice", func(m *lab.MethodInput) { m.Analytes[1].Name = m.Analytes[0].Name }, "/analytes/1/name"},
+		{"no unit", func(m *lab.MethodInput) { m.Analytes[0].Unit = "" }, "/analytes/0/unit"},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
 			in := methodInput("nitrate-ic")
 			tt.change(&in)
 			_, _, err := db.CreateMethod(context.Background(), in, "admin-test")
-			wantKind(t, err, store.KindInvalid)
-			if got := err.(*store.Error).Field; got != tt.field {
+			wantKind(t, err, lab.KindInvalid)
+			if got := err.(*lab.Error).Field; got != tt.field {
 				t.Errorf("field = %q, want %q", got, tt.field)
 			}
 		})

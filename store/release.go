@@ -3,112 +3,19 @@ package store
 import (
 	"context"
 	"errors"
-	"fmt"
-	"strconv"
-	"strings"
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
-
-// Release states of a sample result.
-const (
-	ReleaseProvisional = "provisional" // the curve awaits review
-	ReleaseReleasable  = "releasable"  // the curve is approved and QC does not hold the result back
-	ReleaseWithheld    = "withheld"    // the curve or QC holds the result back; the reason says why
-)
-
-// curveFacts is what a result's release state depends on: its curve's
-// review and verdict, whether it was superseded by an exclusion revision, and
-// the verification standards measured against it.
-type curveFacts struct {
-	ID           string
-	Status       string
-	Verdict      string
-	Fitted       bool
-	FailedChecks []string
-	ReviewedBy   string
-	ReviewReason string
-	SupersededBy string             // the revision's id; "" while the curve is current
-	Checks       []verificationFact // ordered by at, then id
-}
-
-// verificationFact is one verification as the release state needs it.
-type verificationFact struct {
-	ID            string
-	Kind          string
-	At            time.Time
-	Passed        bool
-	DifferencePct *float64
-	LimitPct      float64
-}
-
-// releaseOf derives the release state of a result acquired at acquiredAt
-// from its curve's facts, and says why in words. The first rule that applies
-// decides:
-//
-//  1. the curve was superseded by an exclusion revision: withheld (the
-//     sample has a result against the revision);
-//  2. the curve could not be fitted: withheld;
-//  3. the curve was rejected in review: withheld;
-//  4. the curve failed its mandatory checks and was not approved: withheld;
-//  5. the latest verification at or before acquiredAt failed: withheld until
-//     a passing verification (results acquired after that one are not held)
-//     or a new curve (whose results do not depend on this curve's QC);
-//  6. the curve awaits review: provisional;
-//  7. otherwise the curve is approved (by a reviewer, with a reason when it
-//     had failed checks): releasable.
-func releaseOf(f *curveFacts, acquiredAt time.Time) (state, reason string) {
-	switch {
-	case f.SupersededBy != "":
-		return ReleaseWithheld, fmt.Sprintf("curve %s was superseded by its revision %s (standards excluded); this sample's current result is the one against the revision", f.ID, f.SupersededBy)
-	case !f.Fitted:
-		return ReleaseWithheld, fmt.Sprintf("curve %s could not be fitted, so no concentration can be released", f.ID)
-	case f.Status == StatusRejected:
-		r := fmt.Sprintf("curve %s was rejected in review by %s", f.ID, f.ReviewedBy)
-		if f.ReviewReason != "" {
-			r += ": " + f.ReviewReason
-		}
-		return ReleaseWithheld, r
-	case f.Verdict == VerdictFail && f.Status != StatusApproved:
-		return ReleaseWithheld, fmt.Sprintf("curve %s failed its acceptance checks (%s) and has not been approved", f.ID, strings.Join(f.FailedChecks, ", "))
-	}
-	var last *verificationFact
-	for i := range f.Checks {
-		if f.Checks[i].At.After(acquiredAt) {
-			break
-		}
-		last = &f.Checks[i]
-	}
-	if last != nil && !last.Passed {
-		d := "no value read back"
-		if last.DifferencePct != nil {
-			d = "%D " + strconv.FormatFloat(*last.DifferencePct, 'f', 1, 64) + " %"
-		}
-		return ReleaseWithheld, fmt.Sprintf("the %s calibration verification %s at %s failed (%s, limit ±%s %%); results acquired after it are withheld until a passing verification or a new curve",
-			last.Kind, last.ID, last.At.UTC().Format(time.RFC3339), d, strconv.FormatFloat(last.LimitPct, 'g', -1, 64))
-	}
-	if f.Status == StatusPendingReview {
-		return ReleaseProvisional, fmt.Sprintf("curve %s awaits review by a qualified person", f.ID)
-	}
-	r := fmt.Sprintf("curve %s was approved by %s", f.ID, f.ReviewedBy)
-	if f.Verdict == VerdictFail {
-		r += " despite failed checks (" + strings.Join(f.FailedChecks, ", ") + "), with the reason: " + f.ReviewReason
-	}
-	if last != nil {
-		r += fmt.Sprintf("; the latest verification before this sample (%s at %s) passed", last.Kind, last.At.UTC().Format(time.RFC3339))
-	} else {
-		r += "; no verification before this sample failed"
-	}
-	return ReleaseReleasable, r
-}
 
 // loadCurveFacts reads the facts of curve id in tx. The caller holds the
 // curve's row lock (SELECT … FOR UPDATE), so no review, verification or
 // exclusion of the curve can commit between this read and the caller's
 // writes.
-func loadCurveFacts(ctx context.Context, tx pgx.Tx, id string) (*curveFacts, error) {
-	f := &curveFacts{ID: id}
+func loadCurveFacts(ctx context.Context, tx pgx.Tx, id string) (*lab.CurveFacts, error) {
+	f := &lab.CurveFacts{ID: id}
 	var reviewer, reason, revision *string
 	err := tx.QueryRow(ctx, `
 SELECT c.status, c.verdict, c.slope IS NOT NULL, c.failed_checks, c.reviewed_by, r.reason,
@@ -116,7 +23,7 @@ SELECT c.status, c.verdict, c.slope IS NOT NULL, c.failed_checks, c.reviewed_by,
 FROM curves c LEFT JOIN reviews r ON r.curve_id = c.id
 WHERE c.id = $1`, id).Scan(&f.Status, &f.Verdict, &f.Fitted, &f.FailedChecks, &reviewer, &reason, &revision)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "curve %s not found", id)
+		return nil, lab.Errorf(lab.KindNotFound, "curve %s not found", id)
 	}
 	if err != nil {
 		return nil, classify("select facts of curve "+id, err)
@@ -127,8 +34,8 @@ SELECT id, kind, at, passed, difference_pct, limit_pct FROM verifications WHERE 
 	if err != nil {
 		return nil, classify("select verifications of curve "+id, err)
 	}
-	f.Checks, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (verificationFact, error) {
-		var v verificationFact
+	f.Checks, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.VerificationFact, error) {
+		var v lab.VerificationFact
 		err := row.Scan(&v.ID, &v.Kind, &v.At, &v.Passed, &v.DifferencePct, &v.LimitPct)
 		return v, err
 	})
@@ -176,14 +83,14 @@ func refreshCurveResults(ctx context.Context, tx pgx.Tx, id, cause string, event
 		states, reasons []string
 	)
 	for _, r := range results {
-		state, reason := releaseOf(f, r.at)
+		state, reason := lab.ReleaseOf(f, r.at)
 		if state == r.state && reason == r.reason {
 			continue
 		}
 		ids, states, reasons = append(ids, r.id), append(states, state), append(reasons, reason)
 		if state != r.state {
 			changed++
-			events.add(resultEvent{ResultID: r.id, Kind: EventStateChanged, Cause: cause, State: state, Previous: r.state, Reason: reason})
+			events.add(resultEvent{ResultID: r.id, Kind: lab.EventStateChanged, Cause: cause, State: state, Previous: r.state, Reason: reason})
 		}
 	}
 	if len(ids) == 0 {

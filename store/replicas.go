@@ -10,6 +10,8 @@ import (
 	"sync"
 	"sync/atomic"
 	"time"
+
+	"curvekeeper/lab"
 )
 
 // This file holds what the service knows of PostgreSQL replication: whether
@@ -63,15 +65,6 @@ type replicaState struct {
 	lag    time.Duration // -1: unknown
 	replay uint64        // replayed WAL position
 	reason string        // why not usable
-}
-
-// ReplicaStatus is what Replicas reports of one read replica.
-type ReplicaStatus struct {
-	Name   string        // user@host:port/database, without password
-	InUse  bool          // reads go to it
-	Lag    time.Duration // how far behind the primary; -1 when unknown
-	Reason string        // why it gets no reads; empty when InUse
-	Reads  uint64        // reads handed to it since start
 }
 
 // ReplicaOptions configures AttachReplicas.
@@ -304,11 +297,11 @@ func (db *DB) HasReplicas() bool { return len(db.recov.replicas) > 0 }
 func (db *DB) PrimaryReads() uint64 { return db.recov.fallback.Load() }
 
 // Replicas reports each read replica as the last Refresh found it.
-func (db *DB) Replicas() []ReplicaStatus {
-	out := make([]ReplicaStatus, 0, len(db.recov.replicas))
+func (db *DB) Replicas() []lab.ReplicaStatus {
+	out := make([]lab.ReplicaStatus, 0, len(db.recov.replicas))
 	for _, r := range db.recov.replicas {
 		st := r.state.Load()
-		out = append(out, ReplicaStatus{Name: r.name, InUse: st.usable, Lag: st.lag, Reason: st.reason, Reads: r.reads.Load()})
+		out = append(out, lab.ReplicaStatus{Name: r.name, InUse: st.usable, Lag: st.lag, Reason: st.reason, Reads: r.reads.Load()})
 	}
 	return out
 }
@@ -390,4 +383,13 @@ func parseLSN(s string) (uint64, error) {
 		return 0, fmt.Errorf("store: WAL position %q: %w", s, err)
 	}
 	return h<<32 | l, nil
+}
+
+// ReadsFor returns Reader() when afterLSN is "" and ReaderAfter(afterLSN)
+// otherwise: where a lag-tolerant read goes (lab.Topology).
+func (db *DB) ReadsFor(afterLSN string) lab.Reader {
+	if afterLSN != "" {
+		return db.ReaderAfter(afterLSN)
+	}
+	return db.Reader()
 }

@@ -8,6 +8,7 @@ import (
 
 	"github.com/jackc/pgx/v5"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
@@ -98,7 +99,7 @@ func TestReaderServesFromReplica(t *testing.T) {
 		if r == db {
 			t.Fatal("Reader() returned the primary while the replica is in use")
 		}
-		if _, err := r.ListCurves(ctx, store.CurveFilter{Instrument: "icp-1", Analyte: "Pb"}); err != nil {
+		if _, err := r.ListCurves(ctx, lab.CurveFilter{Instrument: "icp-1", Analyte: "Pb"}); err != nil {
 			t.Fatal(err)
 		}
 	}
@@ -228,7 +229,7 @@ func TestReadOnlyUntilPromoted(t *testing.T) {
 	if !store.IsReadOnlyError(err) {
 		t.Fatalf("write on the standby: %v, want SQLSTATE 25006", err)
 	}
-	if store.IsReadOnlyError(store.Errorf(store.KindConflict, "something else")) {
+	if store.IsReadOnlyError(lab.Errorf(lab.KindConflict, "something else")) {
 		t.Error("IsReadOnlyError matched an error without SQLSTATE 25006")
 	}
 	if !db.NoteError(err) || !db.ReadOnly() {

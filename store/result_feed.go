@@ -4,30 +4,10 @@ import (
 	"context"
 	"encoding/base64"
 	"encoding/binary"
-	"time"
 
 	"github.com/jackc/pgx/v5"
-)
 
-// Kinds of result events.
-const (
-	EventCreated      = "created"
-	EventStateChanged = "state_changed"
-)
-
-// Causes of result events.
-const (
-	CauseRunCreate    = "run.create"
-	CauseSamplesAdd   = "samples.add"
-	CauseReview       = "curve.review"
-	CauseVerification = "curve.verification"
-	CauseExclusion    = "curve.exclusion"
-)
-
-// Feed page sizes.
-const (
-	DefaultFeedLimit = 100
-	MaxFeedLimit     = 1000
+	"curvekeeper/lab"
 )
 
 // ResultFeedLockKey names the transaction-level advisory lock every writer
@@ -104,34 +84,6 @@ ORDER BY u.n`, ids, kinds, causes, states, previous, reasons)
 	return nil
 }
 
-// ResultEvent is one entry of the change feed: a result was created or its
-// release state changed.
-type ResultEvent struct {
-	Seq           int64
-	At            time.Time
-	Kind          string
-	Cause         string
-	State         string
-	Previous      string // "" for EventCreated
-	Reason        string
-	ResultID      int64
-	SampleID      string
-	RunID         string
-	CurveID       string
-	Analyte       string
-	Unit          string
-	Concentration *float64
-}
-
-// FeedPage is one page of the change feed.
-type FeedPage struct {
-	Events []ResultEvent
-	// NextCursor is where the next page starts: after the last event of this
-	// page, or the cursor asked for when the page is empty. Never "".
-	NextCursor string
-	More       bool // more events were committed after this page
-}
-
 // EncodeFeedCursor returns the opaque cursor after sequence number seq
 // (base64url of its 8 big-endian bytes); seq 0 is the start of the feed.
 func EncodeFeedCursor(seq int64) string {
@@ -146,7 +98,7 @@ func decodeFeedCursor(s string) (int64, error) {
 	}
 	b, err := base64.RawURLEncoding.DecodeString(s)
 	if err != nil || len(b) != 8 || int64(binary.BigEndian.Uint64(b)) < 0 {
-		return 0, FieldError("/since", "the cursor is not one this service issued")
+		return 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "since", "the cursor is not one this service issued")
 	}
 	return int64(binary.BigEndian.Uint64(b)), nil
 }
@@ -156,16 +108,16 @@ func decodeFeedCursor(s string) (int64, error) {
 // writers are serialised until commit (ResultFeedLockKey), a page never skips
 // an event that commits later: following NextCursor sees every event exactly
 // once.
-func (db *DB) ResultFeed(ctx context.Context, since string, limit int) (*FeedPage, error) {
+func (db *DB) ResultFeed(ctx context.Context, since string, limit int) (*lab.FeedPage, error) {
 	after, err := decodeFeedCursor(since)
 	if err != nil {
 		return nil, err
 	}
 	switch {
 	case limit == 0:
-		limit = DefaultFeedLimit
-	case limit < 0 || limit > MaxFeedLimit:
-		return nil, FieldError("/limit", "limit must be between 1 and %d", MaxFeedLimit)
+		limit = lab.DefaultFeedLimit
+	case limit < 0 || limit > lab.MaxFeedLimit:
+		return nil, lab.ParamError(lab.KindInvalid, lab.InQuery, "limit", "limit must be between 1 and %d", lab.MaxFeedLimit)
 	}
 	rows, err := db.Pool.Query(ctx, `
 SELECT e.seq, e.at, e.kind, e.cause, e.release_state, coalesce(e.previous_state, ''), e.reason,
@@ -177,8 +129,8 @@ LIMIT $2`, after, limit+1)
 	if err != nil {
 		return nil, classify("read result feed", err)
 	}
-	events, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (ResultEvent, error) {
-		var e ResultEvent
+	events, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.ResultEvent, error) {
+		var e lab.ResultEvent
 		err := row.Scan(&e.Seq, &e.At, &e.Kind, &e.Cause, &e.State, &e.Previous, &e.Reason,
 			&e.ResultID, &e.SampleID, &e.RunID, &e.CurveID, &e.Analyte, &e.Unit, &e.Concentration)
 		return e, err
@@ -186,7 +138,7 @@ LIMIT $2`, after, limit+1)
 	if err != nil {
 		return nil, classify("scan result feed", err)
 	}
-	page := &FeedPage{Events: events, NextCursor: EncodeFeedCursor(after)}
+	page := &lab.FeedPage{Events: events, NextCursor: EncodeFeedCursor(after)}
 	if len(events) > limit {
 		page.Events, page.More = events[:limit], true
 	}

@@ -7,6 +7,7 @@ import (
 	"testing"
 	"time"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -14,7 +15,7 @@ import (
 // event it was served.
 type feedReader struct {
 	cursor string
-	events []store.ResultEvent
+	events []lab.ResultEvent
 }
 
 // poll reads pages of size limit until the feed has nothing more now.
@@ -36,7 +37,7 @@ func (r *feedReader) poll(t *testing.T, db *store.DB, limit int) {
 
 // checkOrderedOnce fails unless the events have strictly increasing seq
 // (so none is served twice) and are exactly the events stored.
-func checkOrderedOnce(t *testing.T, db *store.DB, got []store.ResultEvent) {
+func checkOrderedOnce(t *testing.T, db *store.DB, got []lab.ResultEvent) {
 	t.Helper()
 	for i := 1; i < len(got); i++ {
 		if got[i].Seq <= got[i-1].Seq {
@@ -113,7 +114,7 @@ func TestResultFeedConcurrentWriters(t *testing.T) {
 			for r := 0; r < rounds; r++ {
 				run := runIDs[(w+r)%runs]
 				at := baseTime.Add(time.Duration((w+r)%runs)*time.Hour + time.Duration(10+r)*time.Minute)
-				samples := []store.Sample{
+				samples := []lab.Sample{
 					{ID: fmt.Sprintf("W%d-R%d-a", w, r), Analyte: "nitrate", Responses: []float64{4.5}, AcquiredAt: &at},
 					{ID: fmt.Sprintf("W%d-R%d-b", w, r), Analyte: "nitrite", Responses: []float64{1.2, 1.3}, Dilution: 5, AcquiredAt: &at},
 				}
@@ -127,7 +128,7 @@ func TestResultFeedConcurrentWriters(t *testing.T) {
 	go func() { // a reviewer approves every curve meanwhile: state_changed events
 		defer wg.Done()
 		for _, id := range curveIDs {
-			if _, err := db.ReviewCurve(ctx, id, store.DecisionApprove, "", "token:qa"); err != nil {
+			if _, err := db.ReviewCurve(ctx, id, lab.DecisionApprove, "", "token:qa"); err != nil {
 				t.Errorf("ReviewCurve: %v", err)
 			}
 		}
@@ -141,9 +142,9 @@ func TestResultFeedConcurrentWriters(t *testing.T) {
 	created, changed := map[int64]int{}, 0
 	for _, e := range reader.events {
 		switch e.Kind {
-		case store.EventCreated:
+		case lab.EventCreated:
 			created[e.ResultID]++
-		case store.EventStateChanged:
+		case lab.EventStateChanged:
 			changed++
 		}
 	}
@@ -160,7 +161,7 @@ func TestResultFeedConcurrentWriters(t *testing.T) {
 	last := map[int64]string{}
 	for _, e := range reader.events {
 		prev, seen := last[e.ResultID]
-		if e.Kind == store.EventStateChanged && (!seen || prev != e.Previous) {
+		if e.Kind == lab.EventStateChanged && (!seen || prev != e.Previous) {
 			t.Errorf("seq %d: result %d changes from %q but the feed left it %q", e.Seq, e.ResultID, e.Previous, prev)
 		}
 		last[e.ResultID] = e.State
@@ -219,7 +220,7 @@ FROM sample_results ORDER BY id LIMIT 1 RETURNING seq`).Scan(&seqA)
 	bDone := make(chan error, 1)
 	go func() {
 		at := baseTime.Add(time.Hour)
-		_, err := db.AddSamples(ctx, created.ID, []store.Sample{{ID: "WS-0100", Analyte: "nitrate", Responses: []float64{3}, AcquiredAt: &at}}, "token:instrument")
+		_, err := db.AddSamples(ctx, created.ID, []lab.Sample{{ID: "WS-0100", Analyte: "nitrate", Responses: []float64{3}, AcquiredAt: &at}}, "token:instrument")
 		bDone <- err
 	}()
 	waiting := false

@@ -3,95 +3,12 @@ package store
 import (
 	"context"
 	"errors"
-	"math"
 	"time"
 
 	"github.com/jackc/pgx/v5"
 
-	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
-
-// Flags a stored result may carry besides calib's prediction flags.
-const (
-	FlagNoCurve         = "no_curve"         // the curve could not be fitted
-	FlagNotQuantifiable = "not_quantifiable" // the engine refused the readings (the interval method says why)
-)
-
-// Result is a sample quantified against a curve at write time. Its numbers
-// never change; ReleaseState and ReleaseReason follow the curve and its QC.
-type Result struct {
-	ID              int64
-	CurveID         string
-	RunID           string
-	SampleID        string
-	Analyte         string
-	Unit            string // the analyte's UCUM code
-	AcquiredAt      time.Time
-	Responses       []float64
-	Dilution        float64 // applied after inversion
-	MeanResponse    float64
-	Concentration   *float64 // after dilution; nil when the curve gave none
-	StandardError   *float64
-	IntervalLow     *float64 // nil when the interval is unbounded
-	IntervalHigh    *float64
-	IntervalLevel   float64
-	IntervalBounded bool
-	IntervalMethod  string
-	Flags           []string
-	ReleaseState    string
-	ReleaseReason   string
-	StateChangedAt  time.Time
-	CreatedAt       time.Time
-	CreatedBy       string
-}
-
-// quantity is the outcome of quantifying one sample.
-type quantity struct {
-	conc, se, low, high *float64
-	level               float64
-	bounded             bool
-	method              string
-	flags               []string
-	mean                float64
-}
-
-// quantify predicts the concentration of a sample from rep with the
-// dilution applied after inversion (calib.Report.Predict). A curve without a
-// fit, or readings the engine refuses, still give a result: without a
-// concentration, flagged, the interval method saying why.
-func quantify(rep *calib.Report, responses []float64, dilution float64) quantity {
-	q := quantity{level: rep.Confidence, flags: []string{}}
-	if !(q.level > 0 && q.level < 1) {
-		q.level = 0.95
-	}
-	for _, y := range responses {
-		q.mean += y / float64(len(responses))
-	}
-	if len(rep.Coefficients) == 0 {
-		q.flags, q.method = []string{FlagNoCurve}, "none: the curve could not be fitted"
-		return q
-	}
-	p, err := rep.Predict(responses, dilution, 0)
-	if err != nil {
-		q.flags, q.method = []string{FlagNotQuantifiable}, "none: "+err.Error()
-		return q
-	}
-	q.mean, q.method, q.flags, q.level = p.MeanResponse, p.Method, append(q.flags, p.Flags...), p.Interval.Level
-	if p.HasEstimate() {
-		q.conc, q.se = fptr(p.Concentration), fptr(p.StandardError)
-	}
-	if p.Interval.Bounded {
-		q.low, q.high = fptr(p.Interval.Low), fptr(p.Interval.High)
-		q.bounded = q.low != nil && q.high != nil
-		if !q.bounded {
-			q.low, q.high = nil, nil
-		}
-	}
-	if math.IsNaN(q.mean) || math.IsInf(q.mean, 0) {
-		q.mean = 0
-	}
-	return q
-}
 
 // pendingResult is a result about to be inserted for the run sample at
 // position of runID.
@@ -100,7 +17,7 @@ type pendingResult struct {
 	curveID    string
 	unit       string
 	acquiredAt time.Time
-	q          quantity
+	q          lab.Quantity
 	state      string
 	reason     string
 }
@@ -123,8 +40,8 @@ func insertResults(ctx context.Context, tx pgx.Tx, runID string, rs []pendingRes
 	b := &pgx.Batch{}
 	for _, r := range rs {
 		q := r.q
-		b.Queue(sqlInsertResult, runID, r.position, r.curveID, r.unit, r.acquiredAt, q.mean, q.conc, q.se,
-			q.low, q.high, q.level, q.bounded, q.method, q.flags, r.state, r.reason, actor)
+		b.Queue(sqlInsertResult, runID, r.position, r.curveID, r.unit, r.acquiredAt, q.Mean, q.Conc, q.SE,
+			q.Low, q.High, q.Level, q.Bounded, q.Method, q.Flags, r.state, r.reason, actor)
 	}
 	br := tx.SendBatch(ctx, b)
 	for _, r := range rs {
@@ -133,7 +50,7 @@ func insertResults(ctx context.Context, tx pgx.Tx, runID string, rs []pendingRes
 			_ = br.Close()
 			return classify("insert sample result", err)
 		}
-		events.add(resultEvent{ResultID: id, Kind: EventCreated, Cause: cause, State: r.state, Reason: r.reason})
+		events.add(resultEvent{ResultID: id, Kind: lab.EventCreated, Cause: cause, State: r.state, Reason: r.reason})
 	}
 	if err := br.Close(); err != nil {
 		return classify("insert sample results", err)
@@ -145,8 +62,8 @@ const resultColumns = `id, curve_id, run_id, sample_id, analyte, unit, acquired_
 concentration, standard_error, interval_low, interval_high, interval_level, interval_bounded, interval_method, flags,
 release_state, release_reason, state_changed_at, created_at, created_by`
 
-func scanResult(row pgx.CollectableRow) (Result, error) {
-	var r Result
+func scanResult(row pgx.CollectableRow) (lab.Result, error) {
+	var r lab.Result
 	err := row.Scan(&r.ID, &r.CurveID, &r.RunID, &r.SampleID, &r.Analyte, &r.Unit, &r.AcquiredAt, &r.Responses,
 		&r.Dilution, &r.MeanResponse, &r.Concentration, &r.StandardError, &r.IntervalLow, &r.IntervalHigh,
 		&r.IntervalLevel, &r.IntervalBounded, &r.IntervalMethod, &r.Flags, &r.ReleaseState, &r.ReleaseReason,
@@ -156,7 +73,7 @@ func scanResult(row pgx.CollectableRow) (Result, error) {
 
 // resultsWhere reads results matching a condition on sample_results, in
 // id order (the order they were written).
-func resultsWhere(ctx context.Context, q pgx.Tx, where string, args ...any) ([]Result, error) {
+func resultsWhere(ctx context.Context, q pgx.Tx, where string, args ...any) ([]lab.Result, error) {
 	rows, err := q.Query(ctx, `SELECT `+resultColumns+` FROM sample_results WHERE `+where+` ORDER BY id`, args...)
 	if err != nil {
 		return nil, classify("select results", err)
@@ -180,17 +97,17 @@ func (db *DB) readOnly(ctx context.Context, op string, fn func(pgx.Tx) error) er
 
 // RunResults returns every result of run id (results against superseded
 // curves included, withheld with the reason), in the order written.
-func (db *DB) RunResults(ctx context.Context, id string) ([]Result, error) {
+func (db *DB) RunResults(ctx context.Context, id string) ([]lab.Result, error) {
 	id, err := parseID("run", id)
 	if err != nil {
 		return nil, err
 	}
-	var out []Result
+	var out []lab.Result
 	err = db.readOnly(ctx, "run results "+id, func(tx pgx.Tx) error {
 		var one int
 		if err := tx.QueryRow(ctx, `SELECT 1 FROM runs WHERE id = $1`, id).Scan(&one); err != nil {
 			if errors.Is(err, pgx.ErrNoRows) {
-				return Errorf(KindNotFound, "run %s not found", id)
+				return lab.Errorf(lab.KindNotFound, "run %s not found", id)
 			}
 			return classify("select run", err)
 		}
@@ -202,8 +119,8 @@ func (db *DB) RunResults(ctx context.Context, id string) ([]Result, error) {
 
 // SampleResults returns every result for the LIMS sample id, across runs,
 // in the order written; KindNotFound when there is none.
-func (db *DB) SampleResults(ctx context.Context, sampleID string) ([]Result, error) {
-	var out []Result
+func (db *DB) SampleResults(ctx context.Context, sampleID string) ([]lab.Result, error) {
+	var out []lab.Result
 	err := db.readOnly(ctx, "sample results", func(tx pgx.Tx) error {
 		var err error
 		out, err = resultsWhere(ctx, tx, `sample_id = $1`, sampleID)
@@ -213,7 +130,7 @@ func (db *DB) SampleResults(ctx context.Context, sampleID string) ([]Result, err
 		return nil, err
 	}
 	if len(out) == 0 {
-		return nil, &Error{Kind: KindNotFound, Field: "/sample_id", Message: "no result for sample id " + sampleID + "; samples are posted with a run or with POST /v1/runs/{id}/samples"}
+		return nil, &lab.Error{Kind: lab.KindNotFound, In: lab.InPath, Field: "/sample_id", Message: "no result for sample id " + sampleID + "; samples are posted with a run or with POST /v1/runs/{id}/samples"}
 	}
 	return out, nil
 }

@@ -7,35 +7,11 @@ import (
 	"errors"
 	"fmt"
 	"slices"
-	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
-
-// RunReadsQuery names what ingesting a run reads before its transaction
-// opens: the stored response of its idempotency key (when it carries one),
-// the latest revision of its method and the drift history of each of its
-// analytes on its instrument.
-type RunReadsQuery struct {
-	TokenID     string
-	Key         string // "" reads no idempotency key
-	RequestHash []byte
-	Method      string
-	Instrument  string
-	Analytes    []string
-	Before      time.Time
-	Limit       int // slopes per analyte, as RecentApprovedSlopes
-}
-
-// RunReads is the answer to a RunReadsQuery.
-type RunReads struct {
-	// Replay is the stored response when the key was used before with the
-	// same request hash; the other fields are then not filled in.
-	Replay *RunCreated
-	Method *Method
-	// Slopes holds, per analyte, what RecentApprovedSlopes would return.
-	Slopes map[string][]float64
-}
 
 // sqlSelectLatestMethod reads a method's newest revision.
 const sqlSelectLatestMethod = sqlSelectMethod + ` WHERE name = $1 ORDER BY revision DESC LIMIT 1`
@@ -46,9 +22,9 @@ const sqlSelectLatestMethod = sqlSelectMethod + ` WHERE name = $1 ORDER BY revis
 // body is LookupIdempotency's KindInvalid error, a method that does not
 // exist is GetMethod's KindNotFound error. The method read is fresh, so a
 // run still uses the method's latest revision at the time it is stored.
-func (db *DB) ReadForRun(ctx context.Context, q RunReadsQuery) (*RunReads, error) {
-	if q.Limit < 1 || q.Limit > MaxTrendPoints {
-		return nil, Errorf(KindInvalid, "limit must be in [1, %d]", MaxTrendPoints)
+func (db *DB) ReadForRun(ctx context.Context, q lab.RunReadsQuery) (*lab.RunReads, error) {
+	if q.Limit < 1 || q.Limit > lab.MaxTrendPoints {
+		return nil, lab.Errorf(lab.KindInvalid, "limit must be in [1, %d]", lab.MaxTrendPoints)
 	}
 	b := &pgx.Batch{}
 	if q.Key != "" {
@@ -77,21 +53,21 @@ func (db *DB) ReadForRun(ctx context.Context, q RunReadsQuery) (*RunReads, error
 }
 
 // readRunReads reads the results of ReadForRun's batch in the order queued.
-func (db *DB) readRunReads(br pgx.BatchResults, q RunReadsQuery, analytes []string) (*RunReads, error) {
-	out := &RunReads{}
+func (db *DB) readRunReads(br pgx.BatchResults, q lab.RunReadsQuery, analytes []string) (*lab.RunReads, error) {
+	out := &lab.RunReads{}
 	if q.Key != "" {
 		replay, err := decodeStoredRun(br.QueryRow(), q.RequestHash)
 		switch {
 		case err == nil:
 			out.Replay = replay
 			return out, nil
-		case KindOf(err) != KindNotFound:
+		case lab.KindOf(err) != lab.KindNotFound:
 			return nil, err
 		}
 	}
 	m, err := scanMethodVia(br.QueryRow(), &db.methodDecodes)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "method %q not found", q.Method)
+		return nil, lab.Errorf(lab.KindNotFound, "method %q not found", q.Method)
 	}
 	if err != nil {
 		return nil, classify("select method "+q.Method, err)
@@ -114,11 +90,11 @@ func (db *DB) readRunReads(br pgx.BatchResults, q RunReadsQuery, analytes []stri
 }
 
 // decodeStoredRun is storedRun's decision on a row of sqlSelectKey.
-func decodeStoredRun(row pgx.Row, requestHash []byte) (*RunCreated, error) {
+func decodeStoredRun(row pgx.Row, requestHash []byte) (*lab.RunCreated, error) {
 	var hash, body []byte
 	err := row.Scan(&hash, &body)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "idempotency key not used")
+		return nil, lab.Errorf(lab.KindNotFound, "idempotency key not used")
 	}
 	if err != nil {
 		return nil, classify("select idempotency key", err)
@@ -126,7 +102,7 @@ func decodeStoredRun(row pgx.Row, requestHash []byte) (*RunCreated, error) {
 	if !bytes.Equal(hash, requestHash) {
 		return nil, errKeyReused()
 	}
-	var out RunCreated
+	var out lab.RunCreated
 	if err := json.Unmarshal(body, &out); err != nil {
 		return nil, fmt.Errorf("store: decode stored response of idempotency key: %w", err)
 	}

@@ -11,6 +11,8 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // Writing a run costs the database far more per statement and per round
@@ -61,7 +63,7 @@ type runWrites struct {
 // outcome: nil (stored), errWriteAlone, or the caller's context error.
 type runWrite struct {
 	ctx     context.Context
-	in      *RunInput
+	in      *lab.RunInput
 	runID   string
 	payload []byte // runs.payload
 	body    []byte // the 201 body kept with the idempotency key
@@ -92,15 +94,10 @@ func (db *DB) writes() *runWrites {
 	return db.runWrites
 }
 
-// RunWriteStats counts CreateRun's writes since the service started: the
-// groups written, the runs they held, and the runs written alone after their
-// group failed (an idempotency key used before, a refused run in the group).
-type RunWriteStats struct{ Groups, Grouped, Alone int64 }
-
 // RunWriteStats returns the counts of CreateRun's writes.
-func (db *DB) RunWriteStats() RunWriteStats {
+func (db *DB) RunWriteStats() lab.RunWriteStats {
 	r := db.writes()
-	return RunWriteStats{Groups: r.groups.Load(), Grouped: r.grouped.Load(), Alone: r.alone.Load()}
+	return lab.RunWriteStats{Groups: r.groups.Load(), Grouped: r.grouped.Load(), Alone: r.alone.Load()}
 }
 
 // do queues w and waits for its group's outcome.
@@ -224,7 +221,7 @@ ORDER BY u.n`
 	sqlGroupInsertResult = `
 WITH r AS (` + sqlInsertResult + `, release_state, release_reason)
 INSERT INTO result_events (result_id, kind, cause, release_state, previous_state, reason)
-SELECT r.id, '` + EventCreated + `', $18, r.release_state, NULL, r.release_reason FROM r`
+SELECT r.id, '` + lab.EventCreated + `', $18, r.release_state, NULL, r.release_reason FROM r`
 )
 
 // runRows queues the rows of every run of group, table by table: with
@@ -306,8 +303,8 @@ func runRows(group []*runWrite, claims bool) (*pgx.Batch, error) {
 		}
 		for _, p := range runResults(in, w.curves) {
 			q := p.q
-			results.Queue(sqlGroupInsertResult, w.runID, p.position, p.curveID, p.unit, p.acquiredAt, q.mean, q.conc, q.se,
-				q.low, q.high, q.level, q.bounded, q.method, q.flags, p.state, p.reason, in.Actor, CauseRunCreate)
+			results.Queue(sqlGroupInsertResult, w.runID, p.position, p.curveID, p.unit, p.acquiredAt, q.Mean, q.Conc, q.SE,
+				q.Low, q.High, q.Level, q.Bounded, q.Method, q.Flags, p.state, p.reason, in.Actor, lab.CauseRunCreate)
 		}
 	}
 	if claims && len(kKeys) > 0 {

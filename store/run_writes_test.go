@@ -10,12 +10,13 @@ import (
 	"testing"
 	"time"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
 // groupRun is run i of the group tests: both analytes, two samples, its own
 // instrument time and idempotency key.
-func groupRun(m *store.Method, tokenID string, i int) (store.RunInput, []store.CurveInput) {
+func groupRun(m *lab.Method, tokenID string, i int) (lab.RunInput, []lab.CurveInput) {
 	in, curves := runInput(m, baseTime.Add(time.Duration(i)*time.Minute))
 	in.Instrument = fmt.Sprintf("ic-%02d", i%3)
 	in.TokenID, in.IdempotencyKey = tokenID, fmt.Sprintf("run-%d", i)
@@ -89,10 +90,10 @@ func dump(t *testing.T, db *store.DB) map[string][]string {
 
 // writeGroup makes CreateRun calls for ins at once while writes are held, so
 // that they are written as one group, and returns their outcomes in order.
-func writeGroup(t *testing.T, db *store.DB, ins []store.RunInput, curves [][]store.CurveInput) ([]*store.RunCreated, []error) {
+func writeGroup(t *testing.T, db *store.DB, ins []lab.RunInput, curves [][]lab.CurveInput) ([]*lab.RunCreated, []error) {
 	t.Helper()
 	waitQueued, release := store.HoldRunWrites(db)
-	created, errs := make([]*store.RunCreated, len(ins)), make([]error, len(ins))
+	created, errs := make([]*lab.RunCreated, len(ins)), make([]error, len(ins))
 	var wg sync.WaitGroup
 	for i := range ins {
 		wg.Add(1)
@@ -114,8 +115,8 @@ func TestGroupWriteIsTheSameAsAlone(t *testing.T) {
 	ctx := context.Background()
 	alone, grouped := newDB(t), newDB(t)
 	const n = 6
-	var ins [2][]store.RunInput
-	var curves [2][][]store.CurveInput
+	var ins [2][]lab.RunInput
+	var curves [2][][]lab.CurveInput
 	for k, db := range []*store.DB{alone, grouped} {
 		m := mustMethod(t, db, "nitrate-ic")
 		tokenID, _, err := db.CreateToken(ctx, "ic", []string{"runs:write"}, "admin")
@@ -175,13 +176,13 @@ func TestGroupWithABadRunFallsBack(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	var ins []store.RunInput
-	var curves [][]store.CurveInput
+	var ins []lab.RunInput
+	var curves [][]lab.CurveInput
 	for i := range 4 {
 		in, c := groupRun(m, tokenID, 2*i) // every run with samples
 		ins, curves = append(ins, in), append(curves, c)
 	}
-	ins[1].Samples = append(ins[1].Samples, store.Sample{ID: "WS-0001", Analyte: "nitrate", Responses: []float64{3}})
+	ins[1].Samples = append(ins[1].Samples, lab.Sample{ID: "WS-0001", Analyte: "nitrate", Responses: []float64{3}})
 	ins = append(ins, ins[2]) // a retry of run 2 with its key, in the same group
 	curves = append(curves, curves[2])
 
@@ -190,7 +191,7 @@ func TestGroupWithABadRunFallsBack(t *testing.T) {
 	if g, a := store.RunWriteCounts(db); g != g0 || a-a0 != int64(len(ins)) {
 		t.Fatalf("written in groups %d, alone %d; want the group refused and all %d alone", g-g0, a-a0, len(ins))
 	}
-	wantKind(t, errs[1], store.KindInvalid)
+	wantKind(t, errs[1], lab.KindInvalid)
 	for _, i := range []int{0, 2, 3, 4} {
 		if errs[i] != nil {
 			t.Fatalf("run %d: %v", i, errs[i])
@@ -223,7 +224,7 @@ func TestReadForRunMethodDecodes(t *testing.T) {
 	ctx := context.Background()
 	db := newDB(t)
 	m := mustMethod(t, db, "nitrate-ic")
-	q := store.RunReadsQuery{Method: m.Name, Instrument: "ic-02", Analytes: []string{"nitrate"}, Before: baseTime, Limit: 5}
+	q := lab.RunReadsQuery{Method: m.Name, Instrument: "ic-02", Analytes: []string{"nitrate"}, Before: baseTime, Limit: 5}
 	for i := range 3 {
 		reads, err := db.ReadForRun(ctx, q)
 		if err != nil {

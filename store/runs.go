@@ -5,178 +5,30 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"math"
-	"slices"
-	"strings"
 	"time"
 
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
-
-// Source formats of a run.
-const (
-	FormatJSON = "json"
-	FormatCSV  = "csv"
-)
-
-// Standard is one calibration standard of a run: every response is one
-// replicate reading, in the order measured.
-type Standard struct {
-	Analyte       string    `json:"analyte"`
-	Level         string    `json:"level"`
-	Concentration float64   `json:"concentration"`
-	Responses     []float64 `json:"responses"`
-}
-
-// Sample is one unknown posted with a run.
-type Sample struct {
-	ID        string    `json:"id"`
-	Analyte   string    `json:"analyte"`
-	Responses []float64 `json:"responses"`
-	Dilution  float64   `json:"dilution"` // 0 in RunInput means 1
-	// AcquiredAt is when a sample posted after its run was acquired; nil for
-	// a sample posted with its run, which was acquired with it.
-	AcquiredAt *time.Time `json:"acquired_at,omitempty"`
-}
-
-// RunInput is a run as the api received and validated it.
-type RunInput struct {
-	Method         string
-	MethodRevision int // the revision the curves were fitted with
-	Instrument     string
-	AcquiredAt     time.Time
-	Operator       string // "" when not given
-	SourceFormat   string // FormatJSON or FormatCSV
-	// RequestHash identifies the request body for idempotent replay (the
-	// api's choice of hash, e.g. SHA-256 of the body and content type).
-	RequestHash []byte
-	// IdempotencyKey is the client's Idempotency-Key, "" when absent. Keys
-	// are scoped to TokenID.
-	IdempotencyKey string
-	TokenID        string
-	Actor          string // who posted it, for the audit trail
-	Standards      []Standard
-	Samples        []Sample
-}
-
-// CurveInput is one fitted curve of a run, fitted by the api before
-// CreateRun (with calib.Fit, or calib.FailedReport when it could not be
-// fitted). Model, weighting, verdict and engine version are taken from Report.
-type CurveInput struct {
-	Analyte string
-	Unit    string
-	Report  *calib.Report
-}
-
-// RunCreated is what CreateRun stored; it is also the response body kept for
-// idempotent replay, so its JSON is the api's 201 body.
-type RunCreated struct {
-	ID     string         `json:"id"`
-	Curves []CreatedCurve `json:"curves"`
-	// Replayed is true when the run was stored by an earlier request with
-	// the same idempotency key and body, and nothing was written now.
-	Replayed bool `json:"-"`
-}
-
-// CreatedCurve names one curve of a created run.
-type CreatedCurve struct {
-	ID      string `json:"id"`
-	Analyte string `json:"analyte"`
-	Verdict string `json:"verdict"`
-}
 
 // storedPayload is the normalised run kept in runs.payload.
 type storedPayload struct {
-	Method         string     `json:"method"`
-	MethodRevision int        `json:"method_revision"`
-	Instrument     string     `json:"instrument"`
-	AcquiredAt     time.Time  `json:"acquired_at"`
-	Operator       string     `json:"operator,omitempty"`
-	SourceFormat   string     `json:"source_format"`
-	Standards      []Standard `json:"standards"`
-	Samples        []Sample   `json:"samples"`
-}
-
-func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
-
-// checkRun refuses input the schema would refuse, naming the field, before
-// anything is sent to the database.
-func checkRun(in *RunInput, curves []CurveInput) error {
-	switch {
-	case strings.TrimSpace(in.Method) == "":
-		return FieldError("/method", "method is required")
-	case in.MethodRevision < 1:
-		return Errorf(KindInvalid, "method revision is required")
-	case strings.TrimSpace(in.Instrument) == "" || len(in.Instrument) > 200:
-		return FieldError("/instrument", "instrument must be 1 to 200 characters")
-	case in.AcquiredAt.IsZero():
-		return FieldError("/acquired_at", "acquired_at is required")
-	case in.SourceFormat != FormatJSON && in.SourceFormat != FormatCSV:
-		return Errorf(KindInvalid, "unknown source format %q", in.SourceFormat)
-	case len(in.RequestHash) == 0:
-		return Errorf(KindInvalid, "request hash is required")
-	case strings.TrimSpace(in.Actor) == "":
-		return Errorf(KindInvalid, "actor is required")
-	case len(in.Standards) == 0:
-		return FieldError("/standards", "at least one standard is required")
-	}
-	if in.IdempotencyKey != "" {
-		if len(in.IdempotencyKey) > 255 {
-			return Errorf(KindInvalid, "Idempotency-Key must be at most 255 characters")
-		}
-		if _, err := parseID("token", in.TokenID); err != nil {
-			return Errorf(KindInvalid, "an Idempotency-Key needs the token id it is scoped to")
-		}
-	}
-	type levelKey struct{ analyte, level string }
-	seen := map[levelKey]int{}
-	for i, s := range in.Standards {
-		p := fmt.Sprintf("/standards/%d", i)
-		switch {
-		case strings.TrimSpace(s.Analyte) == "":
-			return FieldError(p+"/analyte", "analyte is required")
-		case strings.TrimSpace(s.Level) == "":
-			return FieldError(p+"/level", "level is required")
-		case !finite(s.Concentration) || s.Concentration < 0:
-			return FieldError(p+"/concentration", "concentration must be a finite number >= 0")
-		case len(s.Responses) == 0:
-			return FieldError(p+"/responses", "at least one response is required")
-		}
-		if j, dup := seen[levelKey{s.Analyte, s.Level}]; dup {
-			return FieldError(p+"/level", "level %q of analyte %q is given twice (also /standards/%d)", s.Level, s.Analyte, j)
-		}
-		seen[levelKey{s.Analyte, s.Level}] = i
-		for k, r := range s.Responses {
-			if !finite(r) {
-				return FieldError(fmt.Sprintf("%s/responses/%d", p, k), "response must be a finite number")
-			}
-		}
-	}
-	in.Samples = slices.Clone(in.Samples) // the dilution default must not write into the caller's slice
-	for i := range in.Samples {
-		if err := checkSample(&in.Samples[i], fmt.Sprintf("/samples/%d", i)); err != nil {
-			return err
-		}
-	}
-	analytes := map[string]bool{}
-	for i, c := range curves {
-		if c.Report == nil {
-			return fmt.Errorf("store: curve %d (%s) has no report", i, c.Analyte)
-		}
-		if analytes[c.Analyte] {
-			return fmt.Errorf("store: two curves for analyte %q", c.Analyte)
-		}
-		analytes[c.Analyte] = true
-	}
-	return nil
+	Method         string         `json:"method"`
+	MethodRevision int            `json:"method_revision"`
+	Instrument     string         `json:"instrument"`
+	AcquiredAt     time.Time      `json:"acquired_at"`
+	Operator       string         `json:"operator,omitempty"`
+	SourceFormat   string         `json:"source_format"`
+	Standards      []lab.Standard `json:"standards"`
+	Samples        []lab.Sample   `json:"samples"`
 }
 
 // preparedCurve is a curve ready to insert: ids assigned, report marshalled.
 type preparedCurve struct {
 	id        string
-	in        CurveInput
+	in        lab.CurveInput
 	model     string
 	weighting string
 	verdict   string
@@ -192,7 +44,7 @@ type curveScalars struct {
 }
 
 func fptr(v float64) *float64 {
-	if !finite(v) {
+	if !calib.Finite(v) {
 		return nil
 	}
 	return &v
@@ -215,14 +67,13 @@ func failedChecks(r *calib.Report) []string {
 // the intercept b0 (NULL for linear_origin, which has none).
 func scalarsOf(r *calib.Report) curveScalars {
 	var s curveScalars
-	c := r.Coefficients
-	switch {
-	case r.Model == calib.LinearOrigin && len(c) == 1:
-		s.slope = fptr(c[0])
-	case (r.Model == calib.Linear && len(c) == 2) || (r.Model == calib.Quadratic && len(c) == 3):
-		s.intercept, s.slope = fptr(c[0]), fptr(c[1])
-	default:
+	b1, ok := r.Slope()
+	if !ok {
 		return s
+	}
+	s.slope = fptr(b1)
+	if b0, ok := r.Intercept(); ok {
+		s.intercept = fptr(b0)
 	}
 	s.residualSD, s.rSquared = fptr(r.ResidualSD), fptr(r.RSquared)
 	if r.Limits.Computed {
@@ -231,7 +82,7 @@ func scalarsOf(r *calib.Report) curveScalars {
 	return s
 }
 
-func prepareCurve(c CurveInput) (preparedCurve, error) {
+func prepareCurve(c lab.CurveInput) (preparedCurve, error) {
 	id, err := newID()
 	if err != nil {
 		return preparedCurve{}, err
@@ -245,7 +96,7 @@ func prepareCurve(c CurveInput) (preparedCurve, error) {
 	if p.engine == "" {
 		p.engine = calib.EngineVersion
 	}
-	if p.verdict != VerdictPass && p.verdict != VerdictFail {
+	if p.verdict != lab.VerdictPass && p.verdict != lab.VerdictFail {
 		return preparedCurve{}, fmt.Errorf("store: curve %s: report verdict %q is neither pass nor fail", c.Analyte, r.Verdict)
 	}
 	p.failed = failedChecks(r)
@@ -271,7 +122,7 @@ VALUES ($1, $2, $3, $4, $5, $6, $7)`
 // written and the original RunCreated is returned with Replayed set; with a
 // different hash the result is KindInvalid ("Idempotency-Key reused with a
 // different body").
-func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (*RunCreated, error) {
+func (db *DB) CreateRun(ctx context.Context, in lab.RunInput, curves []lab.CurveInput) (*lab.RunCreated, error) {
 	w, created, err := prepareRun(ctx, in, curves)
 	if err != nil {
 		return nil, err
@@ -287,21 +138,21 @@ func (db *DB) CreateRun(ctx context.Context, in RunInput, curves []CurveInput) (
 
 // prepareRun checks a run and makes everything its write needs but the
 // database: ids, marshalled report, payload and response.
-func prepareRun(ctx context.Context, in RunInput, curves []CurveInput) (*runWrite, *RunCreated, error) {
-	if err := checkRun(&in, curves); err != nil {
+func prepareRun(ctx context.Context, in lab.RunInput, curves []lab.CurveInput) (*runWrite, *lab.RunCreated, error) {
+	if err := lab.CheckRun(&in, curves); err != nil {
 		return nil, nil, err
 	}
 	runID, err := newID()
 	if err != nil {
 		return nil, nil, err
 	}
-	created := &RunCreated{ID: runID, Curves: []CreatedCurve{}}
+	created := &lab.RunCreated{ID: runID, Curves: []lab.CreatedCurve{}}
 	prepared := make([]preparedCurve, len(curves))
 	for i, c := range curves {
 		if prepared[i], err = prepareCurve(c); err != nil {
 			return nil, nil, err
 		}
-		created.Curves = append(created.Curves, CreatedCurve{ID: prepared[i].id, Analyte: c.Analyte, Verdict: prepared[i].verdict})
+		created.Curves = append(created.Curves, lab.CreatedCurve{ID: prepared[i].id, Analyte: c.Analyte, Verdict: prepared[i].verdict})
 	}
 	body, err := json.Marshal(created)
 	if err != nil {
@@ -309,7 +160,7 @@ func prepareRun(ctx context.Context, in RunInput, curves []CurveInput) (*runWrit
 	}
 	samples := in.Samples
 	if samples == nil {
-		samples = []Sample{}
+		samples = []lab.Sample{}
 	}
 	payload, err := json.Marshal(storedPayload{Method: in.Method, MethodRevision: in.MethodRevision,
 		Instrument: in.Instrument, AcquiredAt: in.AcquiredAt, Operator: in.Operator,
@@ -324,9 +175,9 @@ func prepareRun(ctx context.Context, in RunInput, curves []CurveInput) (*runWrit
 // every run whose group could not be written (runWrites): it claims the
 // idempotency key with ON CONFLICT, so that a key used before is answered
 // with a replay, and tells the run's own errors apart.
-func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *RunCreated) (*RunCreated, error) {
+func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *lab.RunCreated) (*lab.RunCreated, error) {
 	in, runID := w.in, w.runID
-	var replay *RunCreated
+	var replay *lab.RunCreated
 	err := db.inTx(ctx, func(tx pgx.Tx) error {
 		replay = nil
 		if in.IdempotencyKey != "" {
@@ -335,7 +186,7 @@ func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *RunCreat
 			if errors.Is(err, pgx.ErrNoRows) {
 				// Someone holds the key and has committed: replay or refuse.
 				replay, err = storedRun(ctx, tx, in.TokenID, in.IdempotencyKey, in.RequestHash)
-				if KindOf(err) == KindNotFound {
+				if lab.KindOf(err) == lab.KindNotFound {
 					return fmt.Errorf("store: idempotency key %q vanished while claimed", in.IdempotencyKey)
 				}
 				return err
@@ -353,7 +204,7 @@ func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *RunCreat
 		}
 		if err := tx.SendBatch(ctx, batch).Close(); err != nil {
 			if pgCode(err) == codeForeignKeyViolation {
-				return &Error{Kind: KindInvalid, Field: "/method",
+				return &lab.Error{Kind: lab.KindInvalid, Field: "/method",
 					Message: fmt.Sprintf("method %q has no revision %d", in.Method, in.MethodRevision), Err: err}
 			}
 			if pgCode(err) == codeUniqueViolation && pgConstraint(err) == "runs_pkey" {
@@ -363,7 +214,7 @@ func (db *DB) createRunAlone(ctx context.Context, w *runWrite, created *RunCreat
 				return errStoredByGroup
 			}
 			if pgCode(err) == codeUniqueViolation {
-				return &Error{Kind: KindInvalid, Field: "/samples",
+				return &lab.Error{Kind: lab.KindInvalid, Field: "/samples",
 					Message: "a sample id appears twice for one analyte; sample ids are unique per analyte within a run", Err: err}
 			}
 			return classify("insert run "+runID, err)
@@ -390,7 +241,7 @@ type auditRow struct {
 
 // runAudits are the audit rows of a new run: one for the run and one per
 // curve, in that order.
-func runAudits(in *RunInput, runID string, curves []preparedCurve) ([]auditRow, error) {
+func runAudits(in *lab.RunInput, runID string, curves []preparedCurve) ([]auditRow, error) {
 	curveIDs := make([]string, len(curves))
 	readings := 0
 	for i, c := range curves {
@@ -415,7 +266,7 @@ func runAudits(in *RunInput, runID string, curves []preparedCurve) ([]auditRow, 
 	out = append(out, auditRow{in.Actor, ActionRunCreate, entityRun, runID, d})
 	for _, c := range curves {
 		d, err := auditDetail(map[string]any{
-			"run_id": runID, "analyte": c.in.Analyte, "verdict": c.verdict, "status": StatusPendingReview,
+			"run_id": runID, "analyte": c.in.Analyte, "verdict": c.verdict, "status": lab.StatusPendingReview,
 			"model": c.model, "weighting": c.weighting, "engine_version": c.engine,
 		})
 		if err != nil {
@@ -428,7 +279,7 @@ func runAudits(in *RunInput, runID string, curves []preparedCurve) ([]auditRow, 
 
 // runResults quantifies the samples of a new run against its new curves,
 // each pending review.
-func runResults(in *RunInput, curves []preparedCurve) []pendingResult {
+func runResults(in *lab.RunInput, curves []preparedCurve) []pendingResult {
 	byAnalyte := map[string]*preparedCurve{}
 	for i := range curves {
 		byAnalyte[curves[i].in.Analyte] = &curves[i]
@@ -437,55 +288,29 @@ func runResults(in *RunInput, curves []preparedCurve) []pendingResult {
 	for i, s := range in.Samples {
 		c, ok := byAnalyte[s.Analyte]
 		if !ok {
-			continue // the api refuses such a sample; nothing to quantify it against
+			continue // lab.Ingest refuses such a sample; nothing to quantify it against
 		}
-		f := &curveFacts{ID: c.id, Status: StatusPendingReview, Verdict: c.verdict, Fitted: c.scalars.slope != nil, FailedChecks: c.failed}
+		f := &lab.CurveFacts{ID: c.id, Status: lab.StatusPendingReview, Verdict: c.verdict, Fitted: c.scalars.slope != nil, FailedChecks: c.failed}
 		at := in.AcquiredAt
 		if s.AcquiredAt != nil {
 			at = *s.AcquiredAt
 		}
-		state, reason := releaseOf(f, at)
+		state, reason := lab.ReleaseOf(f, at)
 		out = append(out, pendingResult{position: i, curveID: c.id, unit: c.in.Unit, acquiredAt: at,
-			q: quantify(c.in.Report, s.Responses, s.Dilution), state: state, reason: reason})
+			q: lab.Quantify(c.in.Report, s.Responses, s.Dilution), state: state, reason: reason})
 	}
 	return out
 }
 
-// Run is a stored run: its readings grouped back into standards in the order
-// received (responses in replicate order), its samples and its curves.
-type Run struct {
-	ID             string
-	Method         string
-	MethodRevision int
-	Instrument     string
-	AcquiredAt     time.Time
-	Operator       string
-	ReceivedAt     time.Time
-	ReceivedBy     string
-	SourceFormat   string
-	Standards      []Standard
-	Samples        []Sample
-	Curves         []CurveRef
-}
-
-// CurveRef names one curve of a run.
-type CurveRef struct {
-	ID         string
-	Analyte    string
-	Verdict    string
-	Status     string
-	RevisionOf string // "" for the run's own fit
-}
-
 // GetRun returns run id as stored.
-func (db *DB) GetRun(ctx context.Context, id string) (*Run, error) {
+func (db *DB) GetRun(ctx context.Context, id string) (*lab.Run, error) {
 	id, err := parseID("run", id)
 	if err != nil {
 		return nil, err
 	}
 	// One snapshot for the four reads; the rows are immutable, but a
 	// repeatable-read transaction also keeps the curve list consistent.
-	var run *Run
+	var run *lab.Run
 	err = pgx.BeginTxFunc(ctx, db.Pool, pgx.TxOptions{IsoLevel: pgx.RepeatableRead, AccessMode: pgx.ReadOnly}, func(tx pgx.Tx) error {
 		var err error
 		run, err = readRun(ctx, tx, id)
@@ -497,15 +322,15 @@ func (db *DB) GetRun(ctx context.Context, id string) (*Run, error) {
 	return run, nil
 }
 
-func readRun(ctx context.Context, tx pgx.Tx, id string) (*Run, error) {
-	r := &Run{ID: id, Standards: []Standard{}, Samples: []Sample{}, Curves: []CurveRef{}}
+func readRun(ctx context.Context, tx pgx.Tx, id string) (*lab.Run, error) {
+	r := &lab.Run{ID: id, Standards: []lab.Standard{}, Samples: []lab.Sample{}, Curves: []lab.CurveRef{}}
 	var operator *string
 	err := tx.QueryRow(ctx, `
 SELECT method, method_revision, instrument, acquired_at, operator, received_at, received_by, source_format
 FROM runs WHERE id = $1`, id).Scan(&r.Method, &r.MethodRevision, &r.Instrument, &r.AcquiredAt, &operator,
 		&r.ReceivedAt, &r.ReceivedBy, &r.SourceFormat)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, Errorf(KindNotFound, "run %s not found", id)
+		return nil, lab.Errorf(lab.KindNotFound, "run %s not found", id)
 	}
 	if err != nil {
 		return nil, classify("select run", err)
@@ -522,12 +347,12 @@ WHERE run_id = $1 ORDER BY standard, replicate`, id)
 	}
 	var (
 		standard, last int32 = 0, -1
-		s              Standard
+		s              lab.Standard
 		response       float64
 	)
 	_, err = pgx.ForEachRow(rows, []any{&standard, &s.Analyte, &s.Level, &s.Concentration, &response}, func() error {
 		if standard != last {
-			r.Standards = append(r.Standards, Standard{Analyte: s.Analyte, Level: s.Level, Concentration: s.Concentration})
+			r.Standards = append(r.Standards, lab.Standard{Analyte: s.Analyte, Level: s.Level, Concentration: s.Concentration})
 			last = standard
 		}
 		cur := &r.Standards[len(r.Standards)-1]
@@ -542,8 +367,8 @@ WHERE run_id = $1 ORDER BY standard, replicate`, id)
 	if err != nil {
 		return nil, classify("select samples", err)
 	}
-	r.Samples, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (Sample, error) {
-		var s Sample
+	r.Samples, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.Sample, error) {
+		var s lab.Sample
 		err := row.Scan(&s.ID, &s.Analyte, &s.Responses, &s.Dilution)
 		return s, err
 	})
@@ -555,8 +380,8 @@ WHERE run_id = $1 ORDER BY standard, replicate`, id)
 	if err != nil {
 		return nil, classify("select curves of run", err)
 	}
-	r.Curves, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (CurveRef, error) {
-		var c CurveRef
+	r.Curves, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.CurveRef, error) {
+		var c lab.CurveRef
 		err := row.Scan(&c.ID, &c.Analyte, &c.Verdict, &c.Status, &c.RevisionOf)
 		return c, err
 	})

@@ -11,6 +11,7 @@ import (
 	"github.com/jackc/pgx/v5/pgconn"
 	"github.com/jackc/pgx/v5/pgxpool"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -35,7 +36,7 @@ func TestCreateRunStoresEverything(t *testing.T) {
 	if !reflect.DeepEqual(got.Standards, in.Standards) {
 		t.Errorf("standards as stored:\n got %+v\nwant %+v", got.Standards, in.Standards)
 	}
-	wantSamples := []store.Sample{
+	wantSamples := []lab.Sample{
 		{ID: "WS-0001", Analyte: "nitrate", Responses: []float64{7.1, 7.2}, Dilution: 2},
 		{ID: "WS-0002", Analyte: "nitrite", Responses: []float64{0.9}, Dilution: 1},
 	}
@@ -43,10 +44,10 @@ func TestCreateRunStoresEverything(t *testing.T) {
 		t.Errorf("samples = %+v, want %+v", got.Samples, wantSamples)
 	}
 	if got.Method != m.Name || got.MethodRevision != 1 || got.Instrument != "ic-02" || got.Operator != "analyst-a" ||
-		!got.AcquiredAt.Equal(baseTime) || got.SourceFormat != store.FormatJSON || got.ReceivedBy != in.Actor {
+		!got.AcquiredAt.Equal(baseTime) || got.SourceFormat != lab.FormatJSON || got.ReceivedBy != in.Actor {
 		t.Errorf("run row = %+v", got)
 	}
-	if len(got.Curves) != 2 || got.Curves[0].ID != created.Curves[0].ID || got.Curves[0].Status != store.StatusPendingReview {
+	if len(got.Curves) != 2 || got.Curves[0].ID != created.Curves[0].ID || got.Curves[0].Status != lab.StatusPendingReview {
 		t.Errorf("curves of run = %+v, want %+v pending review", got.Curves, created.Curves)
 	}
 
@@ -74,9 +75,9 @@ func TestCreateRunStoresEverything(t *testing.T) {
 	}
 
 	_, err = db.GetRun(ctx, "0190a1b2-0000-7000-8000-000000000000")
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 	_, err = db.GetRun(ctx, "run-1")
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 }
 
 func TestCreateRunKeepsAFailedFit(t *testing.T) {
@@ -84,13 +85,13 @@ func TestCreateRunKeepsAFailedFit(t *testing.T) {
 	ctx := context.Background()
 	m := mustMethod(t, db, "nitrate-ic")
 	in, _ := runInput(m, baseTime)
-	in.Standards = []store.Standard{{Analyte: "nitrate", Level: "L1", Concentration: 1, Responses: []float64{1.5, 1.5, 1.5}}}
+	in.Standards = []lab.Standard{{Analyte: "nitrate", Level: "L1", Concentration: 1, Responses: []float64{1.5, 1.5, 1.5}}}
 	in.Samples = nil
 	c := fit(m, in.Standards, "nitrate")
-	if c.Report.Verdict != store.VerdictFail || len(c.Report.Coefficients) != 0 {
+	if c.Report.Verdict != lab.VerdictFail || len(c.Report.Coefficients) != 0 {
 		t.Fatalf("fixture: one level fitted to %+v, want a failed report without coefficients", c.Report.Coefficients)
 	}
-	created, err := db.CreateRun(ctx, in, []store.CurveInput{c})
+	created, err := db.CreateRun(ctx, in, []lab.CurveInput{c})
 	if err != nil {
 		t.Fatalf("CreateRun: %v", err)
 	}
@@ -98,7 +99,7 @@ func TestCreateRunKeepsAFailedFit(t *testing.T) {
 	if err != nil {
 		t.Fatalf("GetCurve: %v", err)
 	}
-	if curve.Verdict != store.VerdictFail || curve.Slope != nil || curve.RSquared != nil || curve.LOD != nil {
+	if curve.Verdict != lab.VerdictFail || curve.Slope != nil || curve.RSquared != nil || curve.LOD != nil {
 		t.Errorf("failed curve = verdict %s slope %v r² %v lod %v, want fail with NULL scalars",
 			curve.Verdict, curve.Slope, curve.RSquared, curve.LOD)
 	}
@@ -111,11 +112,11 @@ func TestCreateRunIdempotencyKey(t *testing.T) {
 	db := newDB(t)
 	ctx := context.Background()
 	m := mustMethod(t, db, "nitrate-ic")
-	tokenA, _, err := db.CreateToken(ctx, "ic-02", []string{store.ScopeRunsWrite}, "admin-test")
+	tokenA, _, err := db.CreateToken(ctx, "ic-02", []string{lab.ScopeRunsWrite}, "admin-test")
 	if err != nil {
 		t.Fatal(err)
 	}
-	tokenB, _, err := db.CreateToken(ctx, "ic-03", []string{store.ScopeRunsWrite}, "admin-test")
+	tokenB, _, err := db.CreateToken(ctx, "ic-03", []string{lab.ScopeRunsWrite}, "admin-test")
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -144,16 +145,16 @@ func TestCreateRunIdempotencyKey(t *testing.T) {
 	other := in
 	other.RequestHash = hashOf("another body")
 	_, err = db.CreateRun(ctx, other, curves)
-	wantKind(t, err, store.KindInvalid)
-	if msg := err.(*store.Error).Message; msg != "Idempotency-Key reused with a different body" {
+	wantKind(t, err, lab.KindInvalid)
+	if msg := err.(*lab.Error).Message; msg != "Idempotency-Key reused with a different body" {
 		t.Errorf("message = %q", msg)
 	}
 	_, err = db.LookupIdempotency(ctx, tokenA, in.IdempotencyKey, other.RequestHash)
-	wantKind(t, err, store.KindInvalid)
+	wantKind(t, err, lab.KindInvalid)
 	_, err = db.LookupIdempotency(ctx, tokenA, "never-used", in.RequestHash)
-	wantKind(t, err, store.KindNotFound)
+	wantKind(t, err, lab.KindNotFound)
 	// ReadForRun makes LookupIdempotency's decisions in its batch.
-	q := store.RunReadsQuery{TokenID: tokenA, Key: in.IdempotencyKey, RequestHash: in.RequestHash,
+	q := lab.RunReadsQuery{TokenID: tokenA, Key: in.IdempotencyKey, RequestHash: in.RequestHash,
 		Method: m.Name, Instrument: in.Instrument, Before: in.AcquiredAt, Limit: 20}
 	reads, err := db.ReadForRun(ctx, q)
 	if err != nil || reads.Replay == nil || reads.Replay.ID != first.ID || !reads.Replay.Replayed {
@@ -161,7 +162,7 @@ func TestCreateRunIdempotencyKey(t *testing.T) {
 	}
 	q.RequestHash = other.RequestHash
 	_, err = db.ReadForRun(ctx, q)
-	wantKind(t, err, store.KindInvalid)
+	wantKind(t, err, lab.KindInvalid)
 	q.Key, q.RequestHash = "never-used", in.RequestHash
 	reads, err = db.ReadForRun(ctx, q)
 	if err != nil || reads.Replay != nil || reads.Method == nil || reads.Method.Name != m.Name {
@@ -184,7 +185,7 @@ func TestCreateRunConcurrentSameKey(t *testing.T) {
 	db := newDB(t)
 	ctx := context.Background()
 	m := mustMethod(t, db, "nitrate-ic")
-	token, _, err := db.CreateToken(ctx, "ic-02", []string{store.ScopeRunsWrite}, "admin-test")
+	token, _, err := db.CreateToken(ctx, "ic-02", []string{lab.ScopeRunsWrite}, "admin-test")
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -192,7 +193,7 @@ func TestCreateRunConcurrentSameKey(t *testing.T) {
 	var (
 		wg      sync.WaitGroup
 		start   = make(chan struct{})
-		results = make([]*store.RunCreated, n)
+		results = make([]*lab.RunCreated, n)
 		errs    = make([]error, n)
 	)
 	for i := range n {
@@ -234,26 +235,26 @@ func TestCreateRunRefusesBadInput(t *testing.T) {
 	m := mustMethod(t, db, "nitrate-ic")
 	tests := []struct {
 		name   string
-		change func(*store.RunInput)
+		change func(*lab.RunInput)
 		field  string
 	}{
-		{"no instrument", func(in *store.RunInput) { in.Instrument = "" }, "/instrument"},
-		{"no time", func(in *store.RunInput) { in.AcquiredAt = time.Time{} }, "/acquired_at"},
-		{"no standards", func(in *store.RunInput) { in.Standards = nil }, "/standards"},
-		{"negative concentration", func(in *store.RunInput) { in.Standards[2].Concentration = -1 }, "/standards/2/concentration"},
-		{"NaN response", func(in *store.RunInput) { in.Standards[1].Responses[1] = nanValue() }, "/standards/1/responses/1"},
-		{"duplicate level", func(in *store.RunInput) { in.Standards[3].Level = in.Standards[2].Level }, "/standards/3/level"},
-		{"no responses", func(in *store.RunInput) { in.Standards[0].Responses = nil }, "/standards/0/responses"},
-		{"negative dilution", func(in *store.RunInput) { in.Samples[0].Dilution = -2 }, "/samples/0/dilution"},
-		{"sample without id", func(in *store.RunInput) { in.Samples[1].ID = "" }, "/samples/1/id"},
+		{"no instrument", func(in *lab.RunInput) { in.Instrument = "" }, "/instrument"},
+		{"no time", func(in *lab.RunInput) { in.AcquiredAt = time.Time{} }, "/acquired_at"},
+		{"no standards", func(in *lab.RunInput) { in.Standards = nil }, "/standards"},
+		{"negative concentration", func(in *lab.RunInput) { in.Standards[2].Concentration = -1 }, "/standards/2/concentration"},
+		{"NaN response", func(in *lab.RunInput) { in.Standards[1].Responses[1] = nanValue() }, "/standards/1/responses/1"},
+		{"duplicate level", func(in *lab.RunInput) { in.Standards[3].Level = in.Standards[2].Level }, "/standards/3/level"},
+		{"no responses", func(in *lab.RunInput) { in.Standards[0].Responses = nil }, "/standards/0/responses"},
+		{"negative dilution", func(in *lab.RunInput) { in.Samples[0].Dilution = -2 }, "/samples/0/dilution"},
+		{"sample without id", func(in *lab.RunInput) { in.Samples[1].ID = "" }, "/samples/1/id"},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
 			in, curves := runInput(m, baseTime)
 			tt.change(&in)
 			_, err := db.CreateRun(context.Background(), in, curves)
-			wantKind(t, err, store.KindInvalid)
-			if got := err.(*store.Error).Field; got != tt.field {
+			wantKind(t, err, lab.KindInvalid)
+			if got := err.(*lab.Error).Field; got != tt.field {
 				t.Errorf("field = %q, want %q", got, tt.field)
 			}
 		})
@@ -262,8 +263,8 @@ func TestCreateRunRefusesBadInput(t *testing.T) {
 		in, curves := runInput(m, baseTime)
 		in.MethodRevision = 9
 		_, err := db.CreateRun(context.Background(), in, curves)
-		wantKind(t, err, store.KindInvalid)
-		if got := err.(*store.Error).Field; got != "/method" {
+		wantKind(t, err, lab.KindInvalid)
+		if got := err.(*lab.Error).Field; got != "/method" {
 			t.Errorf("field = %q, want /method", got)
 		}
 	})
@@ -294,7 +295,7 @@ func TestEvidenceIsImmutable(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if _, err := db.ReviewCurve(ctx, created.Curves[1].ID, store.DecisionReject, "L6 saturated", "qa-test"); err != nil {
+	if _, err := db.ReviewCurve(ctx, created.Curves[1].ID, lab.DecisionReject, "L6 saturated", "qa-test"); err != nil {
 		t.Fatal(err)
 	}
 	stmts := []struct{ name, sql string }{
@@ -345,9 +346,9 @@ func TestDatabaseDownIsUnavailable(t *testing.T) {
 	defer db.Close()
 	ctx := context.Background()
 	_, err = db.GetCurve(ctx, "0190a1b2-0000-7000-8000-000000000000")
-	wantKind(t, err, store.KindUnavailable)
-	_, _, err = db.CreateToken(ctx, "x", []string{store.ScopeAdmin}, "admin-test")
-	wantKind(t, err, store.KindUnavailable)
+	wantKind(t, err, lab.KindUnavailable)
+	_, _, err = db.CreateToken(ctx, "x", []string{lab.ScopeAdmin}, "admin-test")
+	wantKind(t, err, lab.KindUnavailable)
 	_, err = db.LookupToken(ctx, "ck_whatever")
-	wantKind(t, err, store.KindUnavailable)
+	wantKind(t, err, lab.KindUnavailable)
 }

@@ -5,12 +5,12 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"strings"
 	"time"
 
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
 
 // ActionSamplesAdd is the audit action of samples posted after their run.
@@ -58,29 +58,6 @@ WHERE c.run_id = $1 AND NOT EXISTS (SELECT 1 FROM exclusions e WHERE e.revision_
 	return out, nil
 }
 
-// checkSample refuses a sample the schema would refuse; p is its pointer.
-func checkSample(s *Sample, p string) error {
-	if s.Dilution == 0 {
-		s.Dilution = 1
-	}
-	switch {
-	case strings.TrimSpace(s.ID) == "" || len(s.ID) > 200:
-		return FieldError(p+"/id", "sample id must be 1 to 200 characters")
-	case strings.TrimSpace(s.Analyte) == "":
-		return FieldError(p+"/analyte", "analyte is required")
-	case len(s.Responses) == 0:
-		return FieldError(p+"/responses", "at least one response is required")
-	case !finite(s.Dilution) || s.Dilution <= 0:
-		return FieldError(p+"/dilution", "dilution must be a finite number > 0")
-	}
-	for k, r := range s.Responses {
-		if !finite(r) {
-			return FieldError(fmt.Sprintf("%s/responses/%d", p, k), "response must be a finite number")
-		}
-	}
-	return nil
-}
-
 // AddSamples stores samples measured after run id was posted and quantifies
 // each against the current curve of its analyte in the run, in one
 // transaction with their results, their created events and the audit row.
@@ -88,26 +65,26 @@ func checkSample(s *Sample, p string) error {
 // naming the field): the run has a curve for the analyte; a sample id
 // appears once per analyte in the run (with the earlier samples); a sample
 // was not acquired before the run's standards.
-func (db *DB) AddSamples(ctx context.Context, runID string, samples []Sample, actor string) ([]Result, error) {
+func (db *DB) AddSamples(ctx context.Context, runID string, samples []lab.Sample, actor string) ([]lab.Result, error) {
 	runID, err := parseID("run", runID)
 	if err != nil {
 		return nil, err
 	}
 	if len(samples) == 0 {
-		return nil, FieldError("/samples", "at least one sample is required")
+		return nil, lab.FieldError("/samples", "at least one sample is required")
 	}
 	now := time.Now().UTC()
-	in := make([]Sample, len(samples))
+	in := make([]lab.Sample, len(samples))
 	for i, s := range samples {
 		in[i] = s
-		if err := checkSample(&in[i], fmt.Sprintf("/samples/%d", i)); err != nil {
+		if err := lab.CheckSample(&in[i], fmt.Sprintf("/samples/%d", i)); err != nil {
 			return nil, err
 		}
 		if in[i].AcquiredAt == nil {
 			in[i].AcquiredAt = &now
 		}
 	}
-	var out []Result
+	var out []lab.Result
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
 		// The curve locks come first: they serialise writers of this run's
 		// samples, so the next position read below is this transaction's own.
@@ -121,7 +98,7 @@ func (db *DB) AddSamples(ctx context.Context, runID string, samples []Sample, ac
 SELECT r.acquired_at, coalesce((SELECT max(position) + 1 FROM run_samples WHERE run_id = r.id), 0)
 FROM runs r WHERE r.id = $1`, runID).Scan(&runAt, &next)
 		if errors.Is(err, pgx.ErrNoRows) {
-			return Errorf(KindNotFound, "run %s not found", runID)
+			return lab.Errorf(lab.KindNotFound, "run %s not found", runID)
 		}
 		if err != nil {
 			return classify("select run "+runID, err)
@@ -137,20 +114,20 @@ FROM runs r WHERE r.id = $1`, runID).Scan(&runAt, &next)
 			return classify("scan samples of run "+runID, err)
 		}
 		var pending []pendingResult
-		facts := map[string]*curveFacts{}
+		facts := map[string]*lab.CurveFacts{}
 		b := &pgx.Batch{}
 		for i, s := range in {
 			p := fmt.Sprintf("/samples/%d", i)
 			c, ok := curves[s.Analyte]
 			if !ok {
-				return FieldError(p+"/analyte", "run %s has no curve for the analyte %q to quantify this sample against", runID, s.Analyte)
+				return lab.FieldError(p+"/analyte", "run %s has no curve for the analyte %q to quantify this sample against", runID, s.Analyte)
 			}
 			if seen[key{s.Analyte, s.ID}] {
-				return FieldError(p+"/id", "sample %q of %s is already in run %s; sample ids are unique per analyte within a run", s.ID, s.Analyte, runID)
+				return lab.FieldError(p+"/id", "sample %q of %s is already in run %s; sample ids are unique per analyte within a run", s.ID, s.Analyte, runID)
 			}
 			seen[key{s.Analyte, s.ID}] = true
 			if s.AcquiredAt.Before(runAt) {
-				return FieldError(p+"/acquired_at", "a sample cannot be quantified against standards acquired after it (the run was acquired at %s)", runAt.UTC().Format(time.RFC3339))
+				return lab.FieldError(p+"/acquired_at", "a sample cannot be quantified against standards acquired after it (the run was acquired at %s)", runAt.UTC().Format(time.RFC3339))
 			}
 			f, ok := facts[c.id]
 			if !ok {
@@ -159,19 +136,19 @@ FROM runs r WHERE r.id = $1`, runID).Scan(&runAt, &next)
 				}
 				facts[c.id] = f
 			}
-			state, reason := releaseOf(f, *s.AcquiredAt)
+			state, reason := lab.ReleaseOf(f, *s.AcquiredAt)
 			b.Queue(sqlInsertSample, runID, next+i, s.ID, s.Analyte, s.Responses, s.Dilution, s.AcquiredAt)
 			pending = append(pending, pendingResult{position: next + i, curveID: c.id, unit: c.unit, acquiredAt: *s.AcquiredAt,
-				q: quantify(c.report, s.Responses, s.Dilution), state: state, reason: reason})
+				q: lab.Quantify(c.report, s.Responses, s.Dilution), state: state, reason: reason})
 		}
 		if err := tx.SendBatch(ctx, b).Close(); err != nil {
 			if pgCode(err) == codeUniqueViolation {
-				return &Error{Kind: KindConflict, Message: "a sample with the same id was added to this run concurrently", Err: err}
+				return &lab.Error{Kind: lab.KindConflict, Message: "a sample with the same id was added to this run concurrently", Err: err}
 			}
 			return classify("insert samples of run "+runID, err)
 		}
 		events := &eventBuffer{}
-		if err := insertResults(ctx, tx, runID, pending, actor, CauseSamplesAdd, events); err != nil {
+		if err := insertResults(ctx, tx, runID, pending, actor, lab.CauseSamplesAdd, events); err != nil {
 			return err
 		}
 		ids := make([]string, 0, len(in))

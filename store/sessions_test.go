@@ -5,13 +5,14 @@ import (
 	"testing"
 	"time"
 
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
 func TestSessions(t *testing.T) {
 	ctx := context.Background()
 	db := newDB(t)
-	id, secret, err := db.CreateToken(ctx, "qa-anna", []string{store.ScopeCurvesReview}, "admin-test")
+	id, secret, err := db.CreateToken(ctx, "qa-anna", []string{lab.ScopeCurvesReview}, "admin-test")
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -19,7 +20,7 @@ func TestSessions(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if tok.ID != id || sess == "" || sess == secret {
+	if tok.TokenID != id || sess == "" || sess == secret {
 		t.Fatalf("CreateSession = %q, %+v", sess, tok)
 	}
 	t.Run("only the hash is stored", func(t *testing.T) {
@@ -40,17 +41,17 @@ func TestSessions(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		if s.Token.ID != id || len(s.Token.Scopes) != 1 || s.Token.Scopes[0] != store.ScopeCurvesReview || !s.ExpiresAt.After(time.Now()) {
+		if s.Token.TokenID != id || len(s.Token.Scopes) != 1 || s.Token.Scopes[0] != lab.ScopeCurvesReview || !s.ExpiresAt.After(time.Now()) {
 			t.Errorf("session %+v", s)
 		}
 	})
 	t.Run("bad token and bad lifetime", func(t *testing.T) {
 		_, _, err := db.CreateSession(ctx, "ck_not-a-token", time.Hour)
-		wantKind(t, err, store.KindNotFound)
+		wantKind(t, err, lab.KindNotFound)
 		_, _, err = db.CreateSession(ctx, secret, 48*time.Hour)
-		wantKind(t, err, store.KindInvalid)
+		wantKind(t, err, lab.KindInvalid)
 		_, err = db.LookupSession(ctx, "ck_nothing")
-		wantKind(t, err, store.KindNotFound)
+		wantKind(t, err, lab.KindNotFound)
 	})
 	t.Run("expired sessions are refused", func(t *testing.T) {
 		s2, _, err := db.CreateSession(ctx, secret, time.Hour)
@@ -61,7 +62,7 @@ func TestSessions(t *testing.T) {
 			t.Fatal(err)
 		}
 		_, err = db.LookupSession(ctx, s2)
-		wantKind(t, err, store.KindNotFound)
+		wantKind(t, err, lab.KindNotFound)
 	})
 	t.Run("sign-out deletes, twice is harmless, and is audited", func(t *testing.T) {
 		s3, _, err := db.CreateSession(ctx, secret, time.Hour)
@@ -74,7 +75,7 @@ func TestSessions(t *testing.T) {
 			}
 		}
 		_, err = db.LookupSession(ctx, s3)
-		wantKind(t, err, store.KindNotFound)
+		wantKind(t, err, lab.KindNotFound)
 		var n int
 		if err := db.Pool.QueryRow(ctx, `SELECT count(*) FROM audit WHERE action = $1 AND entity_id = $2`, store.ActionSessionDelete, id).Scan(&n); err != nil {
 			t.Fatal(err)
@@ -88,6 +89,6 @@ func TestSessions(t *testing.T) {
 			t.Fatal(err)
 		}
 		_, err := db.LookupSession(ctx, sess)
-		wantKind(t, err, store.KindNotFound)
+		wantKind(t, err, lab.KindNotFound)
 	})
 }

@@ -6,6 +6,8 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
 
 // Token lookups run on every authenticated request, so under load they are
@@ -38,7 +40,7 @@ type tokenLookup struct {
 	done  chan struct{}
 
 	found     bool
-	tok       Token
+	tok       lab.Principal
 	stored    []byte
 	revokedAt *time.Time
 	status    *string // nil when curve is "" or names no curve
@@ -186,7 +188,7 @@ func (l *tokenLookups) answer(batch []*tokenLookup) {
 				i int64
 				a tokenLookup
 			)
-			if err := rows.Scan(&i, &a.tok.ID, &a.tok.Name, &a.tok.Scopes, &a.stored, &a.revokedAt, &a.status); err != nil {
+			if err := rows.Scan(&i, &a.tok.TokenID, &a.tok.Name, &a.tok.Scopes, &a.stored, &a.revokedAt, &a.status); err != nil {
 				return err
 			}
 			if i < 1 || int(i) > len(first) {

@@ -9,7 +9,7 @@ import (
 	"testing"
 	"time"
 
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // Many concurrent lookups, coalesced into shared statements, each get the
@@ -37,14 +37,14 @@ func TestCoalescedLookupsAnswerEachCaller(t *testing.T) {
 		scopes     []string
 	}
 	var live []tok
-	for i, scopes := range [][]string{{store.ScopeRunsWrite}, {store.ScopeResultsRead}, {store.ScopeAdmin}} {
+	for i, scopes := range [][]string{{lab.ScopeRunsWrite}, {lab.ScopeResultsRead}, {lab.ScopeAdmin}} {
 		id, secret, err := db.CreateToken(ctx, fmt.Sprintf("client-%d", i), scopes, "admin-test")
 		if err != nil {
 			t.Fatalf("CreateToken: %v", err)
 		}
 		live = append(live, tok{id, secret, scopes})
 	}
-	revokedID, revoked, err := db.CreateToken(ctx, "retired", []string{store.ScopeAdmin}, "admin-test")
+	revokedID, revoked, err := db.CreateToken(ctx, "retired", []string{lab.ScopeAdmin}, "admin-test")
 	if err != nil {
 		t.Fatalf("CreateToken: %v", err)
 	}
@@ -64,7 +64,7 @@ func TestCoalescedLookupsAnswerEachCaller(t *testing.T) {
 				case k < 3: // a live token, with a curve, a missing curve or none
 					curve := []string{curveID, missingCurve, ""}[i%3]
 					var (
-						got    store.Token
+						got    lab.Principal
 						status string
 						err    error
 					)
@@ -77,18 +77,18 @@ func TestCoalescedLookupsAnswerEachCaller(t *testing.T) {
 					if curve == curveID {
 						want = wantStatus
 					}
-					if err != nil || got.ID != live[k].id || !slices.Equal(got.Scopes, live[k].scopes) || status != want {
+					if err != nil || got.TokenID != live[k].id || !slices.Equal(got.Scopes, live[k].scopes) || status != want {
 						errs <- fmt.Errorf("token %d curve %q: got %+v status %q err %v, want id %s scopes %v status %q",
 							k, curve, got, status, err, live[k].id, live[k].scopes, want)
 					}
 				case k == 3:
 					_, _, err := db.LookupTokenAndCurveStatus(ctx, revoked, curveID)
-					if store.KindOf(err) != store.KindNotFound {
+					if lab.KindOf(err) != lab.KindNotFound {
 						errs <- fmt.Errorf("revoked token: err %v, want not found", err)
 					}
 				default:
 					_, err := db.LookupToken(ctx, fmt.Sprintf("ck_unknown-%d-%d-padding-padding", g, i))
-					if store.KindOf(err) != store.KindNotFound {
+					if lab.KindOf(err) != lab.KindNotFound {
 						errs <- fmt.Errorf("unknown token: err %v, want not found", err)
 					}
 				}
@@ -117,7 +117,7 @@ func TestCoalescedLookupsSeeRevocationAtOnce(t *testing.T) {
 	db := newDB(t)
 	ctx := context.Background()
 	for round := range 5 {
-		id, secret, err := db.CreateToken(ctx, fmt.Sprintf("lims-%d", round), []string{store.ScopeResultsRead}, "admin-test")
+		id, secret, err := db.CreateToken(ctx, fmt.Sprintf("lims-%d", round), []string{lab.ScopeResultsRead}, "admin-test")
 		if err != nil {
 			t.Fatalf("CreateToken: %v", err)
 		}
@@ -141,7 +141,7 @@ func TestCoalescedLookupsSeeRevocationAtOnce(t *testing.T) {
 						late.Add(1)
 					case err == nil:
 						before.Add(1)
-					case store.KindOf(err) == store.KindNotFound:
+					case lab.KindOf(err) == lab.KindNotFound:
 						refused.Add(1)
 					default:
 						t.Errorf("LookupToken: %v", err)

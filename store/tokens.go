@@ -8,23 +8,12 @@ import (
 	"encoding/base64"
 	"errors"
 	"fmt"
-	"slices"
-	"strings"
 	"time"
 
 	"github.com/jackc/pgx/v5"
-)
 
-// Scopes a token can carry. Admin implies every other scope.
-const (
-	ScopeRunsWrite    = "runs:write"    // instruments posting runs
-	ScopeResultsRead  = "results:read"  // LIMS reading curves and predictions
-	ScopeCurvesReview = "curves:review" // QA staff reviewing curves
-	ScopeAdmin        = "admin"         // everything, plus methods and tokens
+	"curvekeeper/lab"
 )
-
-// Scopes lists every scope, in a fixed order.
-var Scopes = []string{ScopeRunsWrite, ScopeResultsRead, ScopeCurvesReview, ScopeAdmin}
 
 const (
 	// TokenPrefix starts every secret CreateToken issues, so that a leaked
@@ -36,18 +25,6 @@ const (
 	// characters carry 132 bits.
 	minSecretLen = 22
 )
-
-// Token is an API token as the service sees it; its secret is never stored.
-type Token struct {
-	ID     string
-	Name   string
-	Scopes []string
-}
-
-// HasScope reports whether the token grants scope (admin grants every scope).
-func (t Token) HasScope(scope string) bool {
-	return slices.Contains(t.Scopes, scope) || slices.Contains(t.Scopes, ScopeAdmin)
-}
 
 // hashSecret is the stored form of a secret: its SHA-256.
 func hashSecret(secret string) []byte {
@@ -64,34 +41,11 @@ func newSecret() (string, error) {
 	return TokenPrefix + base64.RawURLEncoding.EncodeToString(b), nil
 }
 
-// checkToken validates a token's name and scopes and returns the scopes
-// deduplicated in the order of Scopes.
-func checkToken(name string, scopes []string) ([]string, error) {
-	if strings.TrimSpace(name) == "" || len(name) > 200 {
-		return nil, FieldError("/name", "name must be 1 to 200 characters")
-	}
-	if len(scopes) == 0 {
-		return nil, FieldError("/scopes", "at least one scope is required")
-	}
-	for i, s := range scopes {
-		if !slices.Contains(Scopes, s) {
-			return nil, FieldError(fmt.Sprintf("/scopes/%d", i), "unknown scope %q (one of %s)", s, strings.Join(Scopes, ", "))
-		}
-	}
-	var out []string
-	for _, s := range Scopes {
-		if slices.Contains(scopes, s) {
-			out = append(out, s)
-		}
-	}
-	return out, nil
-}
-
 // CreateToken issues a token with the given name and scopes and returns its id
 // and its secret. The secret is returned only here; the database keeps its
 // SHA-256. The creation is audited under actor.
 func (db *DB) CreateToken(ctx context.Context, name string, scopes []string, actor string) (id, secret string, err error) {
-	scopes, err = checkToken(name, scopes)
+	scopes, err = lab.CheckToken(name, scopes)
 	if err != nil {
 		return "", "", err
 	}
@@ -123,9 +77,9 @@ func (db *DB) CreateToken(ctx context.Context, name string, scopes []string, act
 // the secret must be at least 22 characters long.
 func (db *DB) EnsureToken(ctx context.Context, name, secret string, scopes []string) (id string, created bool, err error) {
 	if len(secret) < minSecretLen {
-		return "", false, Errorf(KindInvalid, "a token secret must be at least %d characters long", minSecretLen)
+		return "", false, lab.Errorf(lab.KindInvalid, "a token secret must be at least %d characters long", minSecretLen)
 	}
-	scopes, err = checkToken(name, scopes)
+	scopes, err = lab.CheckToken(name, scopes)
 	if err != nil {
 		return "", false, err
 	}
@@ -159,7 +113,7 @@ RETURNING id`, newTokenID, name, scopes, hash).Scan(&id)
 
 // LookupToken returns the live token whose secret is secret. An unknown or
 // revoked secret is a KindNotFound error (the api answers 401 for both).
-func (db *DB) LookupToken(ctx context.Context, secret string) (Token, error) {
+func (db *DB) LookupToken(ctx context.Context, secret string) (lab.Principal, error) {
 	t, _, err := db.lookupTokenStatus(ctx, secret, "")
 	return t, err
 }
@@ -167,11 +121,11 @@ func (db *DB) LookupToken(ctx context.Context, secret string) (Token, error) {
 // lookupTokenStatus looks up the token of secret and, when curveID is not
 // "", the review status of that curve (nil when it names no curve), through
 // the coalescing lookups of token_lookups.go: a fresh read on every call.
-func (db *DB) lookupTokenStatus(ctx context.Context, secret, curveID string) (Token, *string, error) {
+func (db *DB) lookupTokenStatus(ctx context.Context, secret, curveID string) (lab.Principal, *string, error) {
 	hash := hashSecret(secret)
 	a, err := db.lookups().do(ctx, hash, curveID)
 	if err != nil {
-		return Token{}, nil, classify("look up token", err)
+		return lab.Principal{}, nil, classify("look up token", err)
 	}
 	err = a.err
 	if err == nil && !a.found {
@@ -179,27 +133,27 @@ func (db *DB) lookupTokenStatus(ctx context.Context, secret, curveID string) (To
 	}
 	t, err := liveToken(a.tok, hash, a.stored, a.revokedAt, err)
 	if err != nil {
-		return Token{}, nil, err
+		return lab.Principal{}, nil, err
 	}
 	return t, a.status, nil
 }
 
 // liveToken decides a token lookup: the row must exist, carry the hash and
 // not be revoked.
-func liveToken(t Token, hash, stored []byte, revokedAt *time.Time, err error) (Token, error) {
+func liveToken(t lab.Principal, hash, stored []byte, revokedAt *time.Time, err error) (lab.Principal, error) {
 	if errors.Is(err, pgx.ErrNoRows) {
-		return Token{}, Errorf(KindNotFound, "unknown token")
+		return lab.Principal{}, lab.Errorf(lab.KindNotFound, "unknown token")
 	}
 	if err != nil {
-		return Token{}, classify("look up token", err)
+		return lab.Principal{}, classify("look up token", err)
 	}
 	// The index found the row by hash; comparing the hashes again in
 	// constant time keeps the decision itself free of timing differences.
 	if subtle.ConstantTimeCompare(stored, hash) != 1 {
-		return Token{}, Errorf(KindNotFound, "unknown token")
+		return lab.Principal{}, lab.Errorf(lab.KindNotFound, "unknown token")
 	}
 	if revokedAt != nil {
-		return Token{}, Errorf(KindNotFound, "token revoked")
+		return lab.Principal{}, lab.Errorf(lab.KindNotFound, "token revoked")
 	}
 	return t, nil
 }
@@ -208,7 +162,7 @@ func liveToken(t Token, hash, stored []byte, revokedAt *time.Time, err error) (T
 // revoked, oldest first (their secrets are not stored, so not returned). It
 // lets a tool that issues tokens under its own actor name, such as the demo
 // loader, find and revoke the ones it issued before.
-func (db *DB) LiveTokensCreatedBy(ctx context.Context, actor string) ([]Token, error) {
+func (db *DB) LiveTokensCreatedBy(ctx context.Context, actor string) ([]lab.Principal, error) {
 	rows, err := db.Pool.Query(ctx, `
 SELECT id, name, scopes FROM tokens
 WHERE created_by = $1 AND revoked_at IS NULL
@@ -216,9 +170,9 @@ ORDER BY created_at, id`, actor)
 	if err != nil {
 		return nil, classify("list tokens", err)
 	}
-	out, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (Token, error) {
-		var t Token
-		err := r.Scan(&t.ID, &t.Name, &t.Scopes)
+	out, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (lab.Principal, error) {
+		var t lab.Principal
+		err := r.Scan(&t.TokenID, &t.Name, &t.Scopes)
 		return t, err
 	})
 	if err != nil {
@@ -239,7 +193,7 @@ func (db *DB) RevokeToken(ctx context.Context, id, actor string) error {
 		var revokedAt *time.Time
 		err := tx.QueryRow(ctx, `SELECT name, revoked_at FROM tokens WHERE id = $1 FOR UPDATE`, id).Scan(&name, &revokedAt)
 		if errors.Is(err, pgx.ErrNoRows) {
-			return Errorf(KindNotFound, "token %s not found", id)
+			return lab.Errorf(lab.KindNotFound, "token %s not found", id)
 		}
 		if err != nil {
 			return classify("select token", err)

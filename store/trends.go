@@ -7,38 +7,17 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/lab"
 )
-
-// Trend parameters: the curve columns a trend can follow.
-const (
-	ParamSlope      = "slope"
-	ParamIntercept  = "intercept"
-	ParamResidualSD = "residual_sd"
-	ParamRSquared   = "r_squared"
-	ParamLOD        = "lod"
-)
-
-// TrendParameters lists the parameters in a fixed order.
-var TrendParameters = []string{ParamSlope, ParamIntercept, ParamResidualSD, ParamRSquared, ParamLOD}
-
-// MaxTrendPoints bounds the curves one trend reads.
-const MaxTrendPoints = 1000
-
-// TrendFilter selects the curves of one instrument and analyte for a trend.
-type TrendFilter struct {
-	Instrument string
-	Analyte    string
-	From       time.Time // acquired_at >= From; zero for no bound
-	To         time.Time // acquired_at < To; zero for no bound
-}
 
 // TrendSeries returns the curves of f oldest first (acquired_at, then id),
 // every status included, at most MaxTrendPoints of them; truncated says that
 // the window held more (the oldest are returned, since the baseline is taken
 // from the start of the series). It reads the history index backwards.
-func (db *DB) TrendSeries(ctx context.Context, f TrendFilter) (curves []CurveSummary, truncated bool, err error) {
+func (db *DB) TrendSeries(ctx context.Context, f lab.TrendFilter) (curves []lab.CurveSummary, truncated bool, err error) {
 	if f.Instrument == "" || f.Analyte == "" {
-		return nil, false, FieldError("/instrument", "a trend needs an instrument and an analyte")
+		return nil, false, lab.FieldError("/instrument", "a trend needs an instrument and an analyte")
 	}
 	args := []any{f.Instrument, f.Analyte}
 	sql := `SELECT ` + curveColumns + ` FROM curves WHERE instrument = $1 AND analyte = $2`
@@ -50,44 +29,22 @@ func (db *DB) TrendSeries(ctx context.Context, f TrendFilter) (curves []CurveSum
 		args = append(args, f.To)
 		sql += fmt.Sprintf(` AND acquired_at < $%d`, len(args))
 	}
-	args = append(args, MaxTrendPoints+1)
+	args = append(args, lab.MaxTrendPoints+1)
 	sql += fmt.Sprintf(` ORDER BY acquired_at, id LIMIT $%d`, len(args))
 	rows, err := db.Pool.Query(ctx, sql, args...)
 	if err != nil {
 		return nil, false, classify("trend series", err)
 	}
-	curves, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (CurveSummary, error) {
+	curves, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.CurveSummary, error) {
 		return scanCurveSummary(row)
 	})
 	if err != nil {
 		return nil, false, classify("scan trend series", err)
 	}
-	if len(curves) > MaxTrendPoints {
-		return curves[:MaxTrendPoints], true, nil
+	if len(curves) > lab.MaxTrendPoints {
+		return curves[:lab.MaxTrendPoints], true, nil
 	}
 	return curves, false, nil
-}
-
-// ParamValue returns the value of parameter p of c, false when it was not
-// computed (a failed fit, no intercept in the origin model, no LOD).
-func (c *CurveSummary) ParamValue(p string) (float64, bool) {
-	var v *float64
-	switch p {
-	case ParamSlope:
-		v = c.Slope
-	case ParamIntercept:
-		v = c.Intercept
-	case ParamResidualSD:
-		v = c.ResidualSD
-	case ParamRSquared:
-		v = c.RSquared
-	case ParamLOD:
-		v = c.LOD
-	}
-	if v == nil {
-		return 0, false
-	}
-	return *v, true
 }
 
 // sqlRecentApprovedSlopes reads the drift history of RecentApprovedSlopes.
@@ -102,8 +59,8 @@ LIMIT $4`
 // first: the history a new curve's drift check is judged against. It is one
 // scan of the partial index curves_approved_history.
 func (db *DB) RecentApprovedSlopes(ctx context.Context, instrument, analyte string, before time.Time, limit int) ([]float64, error) {
-	if limit < 1 || limit > MaxTrendPoints {
-		return nil, Errorf(KindInvalid, "limit must be in [1, %d]", MaxTrendPoints)
+	if limit < 1 || limit > lab.MaxTrendPoints {
+		return nil, lab.Errorf(lab.KindInvalid, "limit must be in [1, %d]", lab.MaxTrendPoints)
 	}
 	rows, err := db.Pool.Query(ctx, sqlRecentApprovedSlopes, instrument, analyte, before, limit)
 	if err != nil {
@@ -117,26 +74,18 @@ func (db *DB) RecentApprovedSlopes(ctx context.Context, instrument, analyte stri
 	return vals, nil
 }
 
-// TrendSubject is one instrument and analyte that has curves.
-type TrendSubject struct {
-	Instrument string
-	Analyte    string
-	Curves     int
-	Last       time.Time
-}
-
 // TrendSubjects lists every instrument and analyte with curves (at most
 // 500), for choosing a trend. It reads the whole history index, so it is for
 // the QA pages, not for hot paths.
-func (db *DB) TrendSubjects(ctx context.Context) ([]TrendSubject, error) {
+func (db *DB) TrendSubjects(ctx context.Context) ([]lab.TrendSubject, error) {
 	rows, err := db.Pool.Query(ctx, `
 SELECT instrument, analyte, count(*), max(acquired_at) FROM curves
 GROUP BY instrument, analyte ORDER BY instrument, analyte LIMIT 500`)
 	if err != nil {
 		return nil, classify("trend subjects", err)
 	}
-	out, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (TrendSubject, error) {
-		var s TrendSubject
+	out, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.TrendSubject, error) {
+		var s lab.TrendSubject
 		err := row.Scan(&s.Instrument, &s.Analyte, &s.Curves, &s.Last)
 		return s, err
 	})

@@ -6,7 +6,7 @@ import (
 	"testing"
 	"time"
 
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
@@ -28,16 +28,16 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 	}
 	// Approve the first three, reject the fourth, leave the fifth pending.
 	for i, id := range nitrate[:4] {
-		d := store.DecisionApprove
+		d := lab.DecisionApprove
 		if i == 3 {
-			d = store.DecisionReject
+			d = lab.DecisionReject
 		}
 		if _, err := db.ReviewCurve(ctx, id, d, "test", "qa-test"); err != nil {
 			t.Fatal(err)
 		}
 	}
 	t.Run("series oldest first, every status", func(t *testing.T) {
-		got, truncated, err := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02", Analyte: "nitrate"})
+		got, truncated, err := db.TrendSeries(ctx, lab.TrendFilter{Instrument: "ic-02", Analyte: "nitrate"})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -48,16 +48,16 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 			if c.ID != nitrate[i] {
 				t.Errorf("curve %d = %s, want %s", i, c.ID, nitrate[i])
 			}
-			if v, ok := c.ParamValue(store.ParamSlope); !ok || v <= 0 {
+			if v, ok := c.ParamValue(lab.ParamSlope); !ok || v <= 0 {
 				t.Errorf("slope of curve %d = %v, %v", i, v, ok)
 			}
 		}
-		if got[3].Status != store.StatusRejected || got[4].Status != store.StatusPendingReview {
+		if got[3].Status != lab.StatusRejected || got[4].Status != lab.StatusPendingReview {
 			t.Errorf("statuses %s, %s", got[3].Status, got[4].Status)
 		}
 	})
 	t.Run("window", func(t *testing.T) {
-		got, _, err := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02", Analyte: "nitrate",
+		got, _, err := db.TrendSeries(ctx, lab.TrendFilter{Instrument: "ic-02", Analyte: "nitrate",
 			From: baseTime.Add(24 * time.Hour), To: baseTime.Add(3 * 24 * time.Hour)})
 		if err != nil {
 			t.Fatal(err)
@@ -67,15 +67,15 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 		}
 	})
 	t.Run("needs instrument and analyte", func(t *testing.T) {
-		_, _, err := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02"})
-		wantKind(t, err, store.KindInvalid)
+		_, _, err := db.TrendSeries(ctx, lab.TrendFilter{Instrument: "ic-02"})
+		wantKind(t, err, lab.KindInvalid)
 	})
 	t.Run("recent approved slopes, oldest first, before the new curve", func(t *testing.T) {
 		got, err := db.RecentApprovedSlopes(ctx, "ic-02", "nitrate", baseTime.Add(10*24*time.Hour), 2)
 		if err != nil {
 			t.Fatal(err)
 		}
-		all, _, _ := db.TrendSeries(ctx, store.TrendFilter{Instrument: "ic-02", Analyte: "nitrate"})
+		all, _, _ := db.TrendSeries(ctx, lab.TrendFilter{Instrument: "ic-02", Analyte: "nitrate"})
 		want := []float64{*all[1].Slope, *all[2].Slope}
 		if len(got) != 2 || got[0] != want[0] || got[1] != want[1] {
 			t.Errorf("got %v, want %v (the two newest approved, oldest first)", got, want)
@@ -87,7 +87,7 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 	})
 	t.Run("ReadForRun reads the method and the same slopes in one batch", func(t *testing.T) {
 		before := baseTime.Add(10 * 24 * time.Hour)
-		got, err := db.ReadForRun(ctx, store.RunReadsQuery{Method: m.Name, Instrument: "ic-02",
+		got, err := db.ReadForRun(ctx, lab.RunReadsQuery{Method: m.Name, Instrument: "ic-02",
 			Analytes: []string{"nitrate", "nitrate", "sulfate"}, Before: before, Limit: 2})
 		if err != nil {
 			t.Fatal(err)
@@ -104,9 +104,9 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 				t.Errorf("slopes of %s = %v, want RecentApprovedSlopes' %v", a, g, want)
 			}
 		}
-		_, err = db.ReadForRun(ctx, store.RunReadsQuery{Method: "no-such-method", Instrument: "ic-02", Before: before, Limit: 2})
-		wantKind(t, err, store.KindNotFound)
-		_, err = db.ReadForRun(ctx, store.RunReadsQuery{Method: m.Name, Instrument: "ic-02", Before: before, Limit: 0})
-		wantKind(t, err, store.KindInvalid)
+		_, err = db.ReadForRun(ctx, lab.RunReadsQuery{Method: "no-such-method", Instrument: "ic-02", Before: before, Limit: 2})
+		wantKind(t, err, lab.KindNotFound)
+		_, err = db.ReadForRun(ctx, lab.RunReadsQuery{Method: m.Name, Instrument: "ic-02", Before: before, Limit: 0})
+		wantKind(t, err, lab.KindInvalid)
 	})
 }

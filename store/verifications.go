@@ -11,55 +11,8 @@ import (
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
-
-// Verification kinds and the audit action of a verification.
-const (
-	VerificationInitial    = "initial"    // ICV
-	VerificationContinuing = "continuing" // CCV
-	ActionCurveVerify      = "curve.verification"
-)
-
-// Rules a verification request can break; each error message names its rule.
-const (
-	RuleCurveNotRejected = "curve_not_rejected"
-	RuleCurveIsCurrent   = "curve_is_current"
-	RuleCurveHasFit      = "curve_has_fit"
-	RuleAfterCalibration = "verification_after_calibration"
-)
-
-// VerificationInput is a verification standard measured against a curve.
-type VerificationInput struct {
-	CurveID       string
-	Kind          string // VerificationInitial or VerificationContinuing
-	Level         string
-	Concentration float64 // nominal, > 0
-	Responses     []float64
-	At            time.Time // when it was measured
-	Actor         string
-}
-
-// Verification is a stored verification with its outcome.
-type Verification struct {
-	ID            string
-	CurveID       string
-	Kind          string
-	Level         string
-	Concentration float64
-	Responses     []float64
-	Found         *float64 // nil when the curve has no root for the response
-	RecoveryPct   *float64
-	DifferencePct *float64
-	LimitPct      float64
-	Passed        bool
-	Detail        string
-	At            time.Time
-	CreatedAt     time.Time
-	CreatedBy     string
-	// ResultsChanged counts the results whose release state this
-	// verification changed (only when just created).
-	ResultsChanged int
-}
 
 // CreateVerification judges a verification standard against curve
 // in.CurveID with the tolerance of the curve's method revision
@@ -69,25 +22,25 @@ type Verification struct {
 // transaction. The curve must have a fit, must not be rejected and must not
 // be superseded by a revision (KindConflict naming the rule); the
 // verification must not predate the calibration (KindInvalid on /at).
-func (db *DB) CreateVerification(ctx context.Context, in VerificationInput) (*Verification, error) {
+func (db *DB) CreateVerification(ctx context.Context, in lab.VerificationInput) (*lab.Verification, error) {
 	curveID, err := parseID("curve", in.CurveID)
 	if err != nil {
 		return nil, err
 	}
-	if in.Kind != VerificationInitial && in.Kind != VerificationContinuing {
-		return nil, FieldError("/kind", "kind must be %q or %q", VerificationInitial, VerificationContinuing)
+	if in.Kind != lab.VerificationInitial && in.Kind != lab.VerificationContinuing {
+		return nil, lab.FieldError("/kind", "kind must be %q or %q", lab.VerificationInitial, lab.VerificationContinuing)
 	}
 	if strings.TrimSpace(in.Level) == "" {
-		return nil, FieldError("/level", "level is required")
+		return nil, lab.FieldError("/level", "level is required")
 	}
 	if in.At.IsZero() {
-		return nil, FieldError("/at", "at is required")
+		return nil, lab.FieldError("/at", "at is required")
 	}
 	id, err := newID()
 	if err != nil {
 		return nil, err
 	}
-	var v *Verification
+	var v *lab.Verification
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
 		var (
 			status, verdict string
@@ -99,7 +52,7 @@ SELECT c.status, c.verdict, c.acquired_at, c.report, m.qc
 FROM curves c JOIN methods m ON m.name = c.method AND m.revision = c.method_revision
 WHERE c.id = $1 FOR UPDATE OF c`, curveID).Scan(&status, &verdict, &acquired, &raw, &qcRaw)
 		if errors.Is(err, pgx.ErrNoRows) {
-			return Errorf(KindNotFound, "curve %s not found", curveID)
+			return lab.Errorf(lab.KindNotFound, "curve %s not found", curveID)
 		}
 		if err != nil {
 			return classify("lock curve "+curveID, err)
@@ -109,34 +62,34 @@ WHERE c.id = $1 FOR UPDATE OF c`, curveID).Scan(&status, &verdict, &acquired, &r
 			return classify("select revision of curve "+curveID, err)
 		}
 		switch {
-		case status == StatusRejected:
-			return Errorf(KindConflict, "rule %s: curve %s was rejected in review; a rejected curve quantifies nothing, so it cannot be verified (calibrate again)", RuleCurveNotRejected, curveID)
+		case status == lab.StatusRejected:
+			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s was rejected in review; a rejected curve quantifies nothing, so it cannot be verified (calibrate again)", lab.RuleCurveNotRejected, curveID)
 		case revision != nil:
-			return Errorf(KindConflict, "rule %s: curve %s was superseded by its revision %s; verify against the revision", RuleCurveIsCurrent, curveID, *revision)
+			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s was superseded by its revision %s; verify against the revision", lab.RuleCurveIsCurrent, curveID, *revision)
 		case in.At.Before(acquired):
-			return FieldError("/at", "rule %s: a verification is measured after its calibration (curve acquired at %s)", RuleAfterCalibration, acquired.UTC().Format(time.RFC3339))
+			return lab.FieldError("/at", "rule %s: a verification is measured after its calibration (curve acquired at %s)", lab.RuleAfterCalibration, acquired.UTC().Format(time.RFC3339))
 		}
 		rep := new(calib.Report)
 		if err := json.Unmarshal(raw, rep); err != nil {
 			return fmt.Errorf("store: decode report of curve %s: %w", curveID, err)
 		}
 		if len(rep.Coefficients) == 0 {
-			return Errorf(KindConflict, "rule %s: curve %s could not be fitted, so nothing can be read back from it", RuleCurveHasFit, curveID)
+			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s could not be fitted, so nothing can be read back from it", lab.RuleCurveHasFit, curveID)
 		}
-		var qc QCPolicy
+		var qc lab.QCPolicy
 		if err := json.Unmarshal(qcRaw, &qc); err != nil {
 			return fmt.Errorf("store: decode qc of the method of curve %s: %w", curveID, err)
 		}
-		qc = qc.withDefaults()
+		qc = qc.WithDefaults()
 		res, err := rep.Verify(in.Responses, in.Concentration, qc.VerificationTolerancePct)
 		if err != nil {
 			var ie *calib.InputError
 			if errors.As(err, &ie) {
-				return FieldError("/"+strings.ReplaceAll(strings.ReplaceAll(ie.Field, "[", "/"), "]", ""), "%s", ie.Reason)
+				return lab.FieldError("/"+strings.ReplaceAll(strings.ReplaceAll(ie.Field, "[", "/"), "]", ""), "%s", ie.Reason)
 			}
 			return fmt.Errorf("store: verify curve %s: %w", curveID, err)
 		}
-		v = &Verification{ID: id, CurveID: curveID, Kind: in.Kind, Level: in.Level, Concentration: in.Concentration,
+		v = &lab.Verification{ID: id, CurveID: curveID, Kind: in.Kind, Level: in.Level, Concentration: in.Concentration,
 			Responses: in.Responses, LimitPct: res.LimitPct, Passed: res.Passed, Detail: res.Detail, At: in.At.UTC(), CreatedBy: in.Actor}
 		if res.HasFound {
 			v.Found, v.RecoveryPct, v.DifferencePct = fptr(res.Found), fptr(res.RecoveryPct), fptr(res.DifferencePct)
@@ -150,14 +103,14 @@ RETURNING created_at`, id, curveID, v.Kind, v.Level, v.Concentration, v.Response
 		if err != nil {
 			return classify("insert verification", err)
 		}
-		if err := writeAudit(ctx, tx, in.Actor, ActionCurveVerify, entityCurve, curveID, map[string]any{
+		if err := writeAudit(ctx, tx, in.Actor, lab.ActionCurveVerify, entityCurve, curveID, map[string]any{
 			"verification_id": id, "kind": v.Kind, "level": v.Level, "concentration": v.Concentration,
 			"found": v.Found, "difference_pct": v.DifferencePct, "limit_pct": v.LimitPct, "passed": v.Passed, "at": v.At,
 		}); err != nil {
 			return err
 		}
 		events := &eventBuffer{}
-		if v.ResultsChanged, err = refreshCurveResults(ctx, tx, curveID, CauseVerification, events); err != nil {
+		if v.ResultsChanged, err = refreshCurveResults(ctx, tx, curveID, lab.CauseVerification, events); err != nil {
 			return err
 		}
 		return flushEvents(ctx, tx, events)
@@ -169,17 +122,17 @@ RETURNING created_at`, id, curveID, v.Kind, v.Level, v.Concentration, v.Response
 }
 
 // ListVerifications returns the verifications of curve id by time.
-func (db *DB) ListVerifications(ctx context.Context, id string) ([]Verification, error) {
+func (db *DB) ListVerifications(ctx context.Context, id string) ([]lab.Verification, error) {
 	id, err := parseID("curve", id)
 	if err != nil {
 		return nil, err
 	}
-	var out []Verification
+	var out []lab.Verification
 	err = db.readOnly(ctx, "list verifications", func(tx pgx.Tx) error {
 		var one int
 		if err := tx.QueryRow(ctx, `SELECT 1 FROM curves WHERE id = $1`, id).Scan(&one); err != nil {
 			if errors.Is(err, pgx.ErrNoRows) {
-				return Errorf(KindNotFound, "curve %s not found", id)
+				return lab.Errorf(lab.KindNotFound, "curve %s not found", id)
 			}
 			return classify("select curve", err)
 		}
@@ -190,8 +143,8 @@ FROM verifications WHERE curve_id = $1 ORDER BY at, id`, id)
 		if err != nil {
 			return classify("select verifications", err)
 		}
-		out, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (Verification, error) {
-			var v Verification
+		out, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.Verification, error) {
+			var v lab.Verification
 			err := row.Scan(&v.ID, &v.CurveID, &v.Kind, &v.Level, &v.Concentration, &v.Responses, &v.Found, &v.RecoveryPct,
 				&v.DifferencePct, &v.LimitPct, &v.Passed, &v.Detail, &v.At, &v.CreatedAt, &v.CreatedBy)
 			return v, err

@@ -47,7 +47,7 @@ func AltText(r *calib.Report, analyte, unit string) string {
 			fmt.Fprintf(&b, ", weighting %s", r.Weighting)
 		}
 		fmt.Fprintf(&b, ": %s", equation(c))
-		if finite(r.RSquared) {
+		if calib.Finite(r.RSquared) {
 			fmt.Fprintf(&b, ", R² = %s", sig4(r.RSquared))
 		}
 		b.WriteString(". ")
@@ -59,7 +59,7 @@ func AltText(r *calib.Report, analyte, unit string) string {
 		b.WriteString(", none excluded")
 	}
 	b.WriteString(". ")
-	if fitted && finite(r.Range.Low) && finite(r.Range.High) && r.Range.High > r.Range.Low {
+	if fitted && calib.Finite(r.Range.Low) && calib.Finite(r.Range.High) && r.Range.High > r.Range.Low {
 		fmt.Fprintf(&b, "Working range %s to %s%s. ", sig4(r.Range.Low), sig4(r.Range.High), withUnit(unit))
 	}
 	if fitted && r.Confidence > 0 && r.Confidence < 1 {
@@ -85,14 +85,9 @@ func AltText(r *calib.Report, analyte, unit string) string {
 
 // equation writes ŷ = f(x)ᵀβ with coefficients to 4 significant figures.
 func equation(c curve) string {
-	var terms []string
-	switch c.model {
-	case calib.LinearOrigin:
-		return "y = " + signed(c.coef[0]) + "·x"
-	case calib.Quadratic:
-		terms = []string{"", "·x", "·x²"}
-	default:
-		terms = []string{"", "·x"}
+	terms := calib.Terms(c.model)
+	if c.model == calib.LinearOrigin {
+		return "y = " + signed(c.coef[0]) + terms[0]
 	}
 	var b strings.Builder
 	b.WriteString("y = " + signed(c.coef[0]))

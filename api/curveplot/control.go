@@ -12,6 +12,8 @@ import (
 	"gonum.org/v1/plot/plotter"
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
+
+	"curvekeeper/calib"
 )
 
 // Series is one parameter of a run of curves over time with its baseline,
@@ -80,7 +82,7 @@ func controlPlot(s Series, o Options) (*plot.Plot, error) {
 	var badLabels []string
 	tmin, tmax := math.Inf(1), math.Inf(-1)
 	for _, pt := range s.Points {
-		if !finite(pt.Value) || pt.At.IsZero() {
+		if !calib.Finite(pt.Value) || pt.At.IsZero() {
 			continue
 		}
 		x := float64(pt.At.Unix())
@@ -97,7 +99,7 @@ func controlPlot(s Series, o Options) (*plot.Plot, error) {
 	slices.SortStableFunc(all, func(a, b plotter.XY) int { return cmp.Compare(a.X, b.X) })
 	p.X.Tick.Marker = dayTicks{}
 
-	baseline := finite(s.Mean) && finite(s.SD) && s.SD > 0
+	baseline := calib.Finite(s.Mean) && calib.Finite(s.SD) && s.SD > 0
 	if baseline {
 		addLimits(p, s.Mean, s.SD)
 	}
@@ -224,7 +226,7 @@ func addLimits(p *plot.Plot, mean, sd float64) {
 type dayTicks struct{}
 
 func (dayTicks) Ticks(lo, hi float64) []plot.Tick {
-	if !finite(lo) || !finite(hi) || hi <= lo {
+	if !calib.Finite(lo) || !calib.Finite(hi) || hi <= lo {
 		return nil
 	}
 	const day = 86400

@@ -87,7 +87,7 @@ func curvePanels(r *calib.Report, o Options, c curve, fitted bool) (top, bottom 
 
 	var accepted, excluded, resid plotter.XYs
 	for _, p := range r.Points {
-		if !finite(p.X) || !finite(p.Y) {
+		if !calib.Finite(p.X) || !calib.Finite(p.Y) {
 			continue
 		}
 		if p.Excluded {
@@ -95,7 +95,7 @@ func curvePanels(r *calib.Report, o Options, c curve, fitted bool) (top, bottom 
 			continue
 		}
 		accepted = append(accepted, plotter.XY{X: p.X, Y: p.Y})
-		if fitted && finite(p.Studentized) {
+		if fitted && calib.Finite(p.Studentized) {
 			resid = append(resid, plotter.XY{X: p.X, Y: p.Studentized})
 		}
 	}
@@ -127,7 +127,7 @@ func curvePanels(r *calib.Report, o Options, c curve, fitted bool) (top, bottom 
 // range it falls back to the span of the accepted standards.
 func curveDomain(r *calib.Report, accepted plotter.XYs) (lo, hi float64) {
 	lo, hi = r.Range.Low, r.Range.High
-	if !finite(lo) || !finite(hi) || hi <= lo {
+	if !calib.Finite(lo) || !calib.Finite(hi) || hi <= lo {
 		lo, hi = math.Inf(1), math.Inf(-1)
 		for _, p := range accepted {
 			lo, hi = math.Min(lo, p.X), math.Max(hi, p.X)
@@ -152,11 +152,11 @@ func addModel(p *plot.Plot, r *calib.Report, c curve, lo, hi float64) error {
 	line := make(plotter.XYs, 0, curveSamples+1)
 	upper := make(plotter.XYs, 0, curveSamples+1)
 	lower := make(plotter.XYs, 0, curveSamples+1)
-	band := c.cov != nil
+	band := c.band
 	for i := 0; i <= curveSamples; i++ {
 		x := lo + (hi-lo)*float64(i)/curveSamples
 		y := c.at(x)
-		if !finite(y) {
+		if !calib.Finite(y) {
 			continue
 		}
 		line = append(line, plotter.XY{X: x, Y: y})

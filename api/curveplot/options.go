@@ -12,13 +12,14 @@ import (
 	"bytes"
 	"fmt"
 	"image/color"
-	"math"
 
 	"gonum.org/v1/plot/font"
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
 	"gonum.org/v1/plot/vg/vgimg"
 	"gonum.org/v1/plot/vg/vgsvg"
+
+	"curvekeeper/calib"
 )
 
 // Output formats.
@@ -85,7 +86,7 @@ func (o Options) resolve() (Options, error) {
 		name string
 		v    vg.Length
 	}{{"width", o.Width}, {"height", o.Height}} {
-		if !finite(float64(s.v)) || s.v < 4*vg.Centimeter || s.v > maxSide {
+		if !calib.Finite(float64(s.v)) || s.v < 4*vg.Centimeter || s.v > maxSide {
 			return o, &OptionError{Field: s.name, Reason: fmt.Sprintf("%.1f cm is outside 4 cm to 100 cm", float64(s.v/vg.Centimeter))}
 		}
 	}
@@ -148,5 +149,3 @@ var (
 func sans(size vg.Length) font.Font {
 	return font.From(font.Font{Typeface: "Liberation", Variant: "Sans"}, size)
 }
-
-func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }

@@ -5,6 +5,8 @@ import (
 	"strconv"
 
 	"gonum.org/v1/plot"
+
+	"curvekeeper/calib"
 )
 
 // niceTicks places about n major ticks at 1, 2 or 5 × 10^k steps with
@@ -13,12 +15,12 @@ import (
 type niceTicks struct{ n int }
 
 func (t niceTicks) Ticks(lo, hi float64) []plot.Tick {
-	if !finite(lo) || !finite(hi) || hi <= lo {
+	if !calib.Finite(lo) || !calib.Finite(hi) || hi <= lo {
 		return nil
 	}
 	n := max(t.n, 2)
 	step := niceStep((hi - lo) / float64(n-1))
-	if !finite(step) || step <= 0 {
+	if !calib.Finite(step) || step <= 0 {
 		return nil
 	}
 	first := math.Ceil(lo/step) * step

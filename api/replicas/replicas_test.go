@@ -21,6 +21,7 @@ import (
 	"github.com/jackc/pgx/v5/pgxpool"
 
 	"curvekeeper/api"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
@@ -35,7 +36,7 @@ func replica(t *testing.T, url string) *httptest.Server {
 		t.Fatal(err)
 	}
 	t.Cleanup(db.Close)
-	srv, err := api.New(api.Config{}, db, slog.New(slog.DiscardHandler))
+	srv, err := api.New(api.Config{}, lab.NewService(db), slog.New(slog.DiscardHandler))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -117,7 +118,7 @@ func TestTwoReplicasIngestOneStreamWithRetries(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer setup.Close()
-	_, admin, err := setup.CreateToken(ctx, "replica-admin", []string{store.ScopeAdmin}, "test")
+	_, admin, err := setup.CreateToken(ctx, "replica-admin", []string{lab.ScopeAdmin}, "test")
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
@@ -97,8 +98,8 @@ func benchDB(t *testing.T) (string, *store.DB) {
 		t.Fatal(err)
 	}
 	t.Cleanup(db.Close)
-	_, _, err = db.CreateMethod(ctx, store.MethodInput{Name: benchMethod, Model: calib.Linear, Weighting: calib.WeightInvX2,
-		Confidence: 0.95, Analytes: []store.Analyte{{Name: benchAnalyte, Unit: "mg/L"}}, Acceptance: calib.DefaultPolicy()}, "test")
+	_, _, err = db.CreateMethod(ctx, lab.MethodInput{Name: benchMethod, Model: calib.Linear, Weighting: calib.WeightInvX2,
+		Confidence: 0.95, Analytes: []lab.Analyte{{Name: benchAnalyte, Unit: "mg/L"}}, Acceptance: calib.DefaultPolicy()}, "test")
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -113,7 +114,7 @@ func TestBulkLoadServesHistory(t *testing.T) {
 	if err := bulkLoadCurves(ctx, url, 400, 120); err != nil {
 		t.Fatal(err)
 	}
-	f := store.CurveFilter{Instrument: historyInstrument, Analyte: benchAnalyte, Limit: 50}
+	f := lab.CurveFilter{Instrument: historyInstrument, Analyte: benchAnalyte, Limit: 50}
 	seen := 0
 	var first string
 	for page := 0; page < 5; page++ {

@@ -13,6 +13,7 @@ import (
 	"github.com/jackc/pgx/v5"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -65,7 +66,7 @@ func (h *harness) history(ctx context.Context) error {
 		}
 	}
 	direct := func(ctx context.Context, _ int) error {
-		page, err := db.ListCurves(ctx, store.CurveFilter{Instrument: historyInstrument, Analyte: benchAnalyte, Limit: 50})
+		page, err := db.ListCurves(ctx, lab.CurveFilter{Instrument: historyInstrument, Analyte: benchAnalyte, Limit: 50})
 		if err == nil && len(page.Curves) != 50 {
 			err = fmt.Errorf("store page 1 has %d curves", len(page.Curves))
 		}

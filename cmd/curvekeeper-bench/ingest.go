@@ -248,7 +248,7 @@ func insertBaselineRun(ctx context.Context, pool *pgxpool.Pool, body []byte, seq
 
 func newUUIDv7() (uuid.UUID, error) { return uuid.NewV7() }
 
-// writeCounts are the service's run-write counters (store.RunWriteStats).
+// writeCounts are the service's run-write counters (lab.RunWriteStats).
 type writeCounts struct{ groups, grouped, alone float64 }
 
 // runWriteCounts reads the run-write counters from the service's /metrics.

@@ -15,6 +15,7 @@ import (
 
 	"curvekeeper/api"
 	"curvekeeper/calib"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 )
 
@@ -42,7 +43,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 	if err := store.MigrateUp(ctx, dbase.url, cfg.MigrateLockWait); err != nil {
 		return err
 	}
-	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout}, db,
+	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout}, lab.NewService(db),
 		slog.New(slog.NewJSONHandler(io.Discard, nil)))
 	if err != nil {
 		return err
@@ -51,7 +52,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 	if err != nil {
 		return err
 	}
-	adminSecret := tokens[api.ScopeAdmin]
+	adminSecret := tokens[lab.ScopeAdmin]
 	d := &demoClient{h: srv.Handler(), ctx: ctx}
 	for _, m := range demoMethods {
 		if err := d.do(adminSecret, http.MethodPost, "/v1/methods", m, nil); err != nil {
@@ -62,7 +63,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 	var existing struct {
 		Curves []struct{} `json:"curves"`
 	}
-	if err := d.do(tokens[api.ScopeResultsRead], http.MethodGet, "/v1/curves?instrument="+demoICPMS+"&limit=1", nil, &existing); err != nil {
+	if err := d.do(tokens[lab.ScopeResultsRead], http.MethodGet, "/v1/curves?instrument="+demoICPMS+"&limit=1", nil, &existing); err != nil {
 		return err
 	}
 	loaded := 0
@@ -76,21 +77,21 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 					Verdict string `json:"verdict"`
 				} `json:"curves"`
 			}
-			if err := d.doKey(tokens[api.ScopeRunsWrite], fmt.Sprintf("demo-run-%03d", i), "/v1/runs", r, &created); err != nil {
+			if err := d.doKey(tokens[lab.ScopeRunsWrite], fmt.Sprintf("demo-run-%03d", i), "/v1/runs", r, &created); err != nil {
 				return fmt.Errorf("demo run %d: %w", i, err)
 			}
 			loaded++
 			for _, c := range created.Curves {
 				if c.Verdict == "pass" && r.AcquiredAt.Before(cutoff) {
 					body := map[string]any{"decision": "approve", "reason": "reviewed in the weekly QA round (demo)"}
-					if err := d.do(tokens[api.ScopeCurvesReview], http.MethodPost, "/v1/curves/"+c.ID+"/review", body, nil); err != nil {
+					if err := d.do(tokens[lab.ScopeCurvesReview], http.MethodPost, "/v1/curves/"+c.ID+"/review", body, nil); err != nil {
 						return err
 					}
 				}
 			}
 		}
 	}
-	picks, err := demoPickCurves(d, tokens[api.ScopeResultsRead], now)
+	picks, err := demoPickCurves(d, tokens[lab.ScopeResultsRead], now)
 	if err != nil {
 		return err
 	}
@@ -117,7 +118,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 	}
 	fmt.Fprintf(w, "\nNew tokens (shown once; only their hashes are stored):\n")
 	fmt.Fprintf(w, "  export ADMIN=%s\n  export INSTRUMENT=%s\n  export LIMS=%s\n  export QA=%s\n",
-		tokens[api.ScopeAdmin], tokens[api.ScopeRunsWrite], tokens[api.ScopeResultsRead], tokens[api.ScopeCurvesReview])
+		tokens[lab.ScopeAdmin], tokens[lab.ScopeRunsWrite], tokens[lab.ScopeResultsRead], tokens[lab.ScopeCurvesReview])
 	fmt.Fprintf(w, "\nStart the service (in another terminal) with the same settings, then try:\n")
 	fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" '%s/v1/curves?instrument=%s&limit=5'\n", base, demoICPMS)
 	if picks.curved != "" {
@@ -161,8 +162,8 @@ const demoTokenActor = "demo"
 
 // demoRoles are the demo's tokens: one per role.
 var demoRoles = []struct{ name, scope string }{
-	{"demo-admin", api.ScopeAdmin}, {"demo-instrument", api.ScopeRunsWrite},
-	{"demo-lims", api.ScopeResultsRead}, {"demo-qa", api.ScopeCurvesReview},
+	{"demo-admin", lab.ScopeAdmin}, {"demo-instrument", lab.ScopeRunsWrite},
+	{"demo-lims", lab.ScopeResultsRead}, {"demo-qa", lab.ScopeCurvesReview},
 }
 
 // demoTokens revokes the live tokens an earlier demo issued and issues one
@@ -178,7 +179,7 @@ func demoTokens(ctx context.Context, db *store.DB) (map[string]string, []string,
 	}
 	for _, t := range slices.Clone(old) {
 		if t.Name == demoRoles[0].name {
-			more, err := db.LiveTokensCreatedBy(ctx, "token:"+t.Name+":"+t.ID)
+			more, err := db.LiveTokensCreatedBy(ctx, t.Actor())
 			if err != nil {
 				return nil, nil, err
 			}
@@ -190,7 +191,7 @@ func demoTokens(ctx context.Context, db *store.DB) (map[string]string, []string,
 		if !slices.ContainsFunc(demoRoles, func(r struct{ name, scope string }) bool { return r.name == t.Name }) {
 			continue
 		}
-		if err := db.RevokeToken(ctx, t.ID, demoTokenActor); err != nil {
+		if err := db.RevokeToken(ctx, t.TokenID, demoTokenActor); err != nil {
 			return nil, nil, err
 		}
 		revoked = append(revoked, t.Name)

@@ -12,7 +12,7 @@ import (
 	"time"
 
 	"curvekeeper/api"
-
+	"curvekeeper/lab"
 	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
@@ -184,11 +184,11 @@ func demoPrintedSecret(t *testing.T, out, name string) string {
 // returns the reject rules it reports.
 func demoTrendRejects(t *testing.T, ctx context.Context, db *store.DB) []string {
 	t.Helper()
-	srv, err := api.New(api.Config{}, db, slog.New(slog.NewTextHandler(io.Discard, nil)))
+	srv, err := api.New(api.Config{}, lab.NewService(db), slog.New(slog.NewTextHandler(io.Discard, nil)))
 	if err != nil {
 		t.Fatal(err)
 	}
-	_, secret, err := db.CreateToken(ctx, "demo-test-qa", []string{store.ScopeCurvesReview}, "test")
+	_, secret, err := db.CreateToken(ctx, "demo-test-qa", []string{lab.ScopeCurvesReview}, "test")
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -14,6 +14,7 @@ import (
 	"time"
 
 	"curvekeeper/api"
+	"curvekeeper/lab"
 	"curvekeeper/store"
 	"curvekeeper/store/localpg"
 )
@@ -160,7 +161,7 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 		rateLimit = -1 // off
 	}
 	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout,
-		RateLimit: rateLimit, RateBurst: cfg.RateBurst}, db, log)
+		RateLimit: rateLimit, RateBurst: cfg.RateBurst}, lab.NewService(db), log)
 	if err != nil {
 		return err
 	}

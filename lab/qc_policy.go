@@ -1,4 +1,4 @@
-package store
+package lab
 
 import (
 	"math"
@@ -29,24 +29,27 @@ func DefaultQCPolicy() QCPolicy {
 	return QCPolicy{VerificationTolerancePct: calib.DefaultVerificationTolerancePct}
 }
 
-func (q QCPolicy) withDefaults() QCPolicy {
+// WithDefaults fills the zero fields with DefaultQCPolicy's values.
+func (q QCPolicy) WithDefaults() QCPolicy {
 	if q.VerificationTolerancePct == 0 {
 		q.VerificationTolerancePct = calib.DefaultVerificationTolerancePct
 	}
 	return q
 }
 
-func (q QCPolicy) check() error {
-	if !finite(q.VerificationTolerancePct) || q.VerificationTolerancePct <= 0 || q.VerificationTolerancePct > 100 {
+// Check refuses a policy outside its bounds, naming the field.
+func (q QCPolicy) Check() error {
+	if !calib.Finite(q.VerificationTolerancePct) || q.VerificationTolerancePct <= 0 || q.VerificationTolerancePct > 100 {
 		return FieldError("/acceptance/verification_tolerance_pct", "must be a number in (0, 100]")
 	}
-	if !finite(q.MaxCurveAgeHours) || q.MaxCurveAgeHours < 0 || q.MaxCurveAgeHours > 24*366*10 {
+	if !calib.Finite(q.MaxCurveAgeHours) || q.MaxCurveAgeHours < 0 || q.MaxCurveAgeHours > 24*366*10 {
 		return FieldError("/max_curve_age_hours", "must be a number of hours in (0, 87840], or absent for no limit")
 	}
 	return nil
 }
 
-func (q QCPolicy) equal(o QCPolicy) bool {
+// Equal reports whether two policies hold the same settings.
+func (q QCPolicy) Equal(o QCPolicy) bool {
 	return q.VerificationTolerancePct == o.VerificationTolerancePct &&
 		q.PendingCurvesInForce == o.PendingCurvesInForce && q.MaxCurveAgeHours == o.MaxCurveAgeHours
 }

@@ -1,7 +1,6 @@
-package api
+package qaui
 
 import (
-	"context"
 	"crypto/hmac"
 	"crypto/rand"
 	"crypto/sha256"
@@ -16,7 +15,7 @@ import (
 
 	"github.com/labstack/echo/v4"
 
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // The QA pages' cookies. The session cookie holds the session secret (the
@@ -32,7 +31,7 @@ const (
 
 // uiSession is the signed-in user of a QA page request.
 type uiSession struct {
-	Principal Principal
+	Principal lab.Principal
 	secret    string // the cookie's session secret
 	CSRF      string // the synchronizer token of this session's forms
 }
@@ -44,11 +43,11 @@ func (u *uiSession) Has(scopes ...string) bool {
 
 // CanRead: the scopes of GET /v1/curves and /v1/trends.
 func (u *uiSession) CanRead() bool {
-	return u.Has(ScopeResultsRead, ScopeCurvesReview, ScopeAdmin)
+	return u.Has(lab.ScopeResultsRead, lab.ScopeCurvesReview, lab.ScopeAdmin)
 }
 
 // CanReview: the scopes of POST /v1/curves/{id}/review and the audit trail.
-func (u *uiSession) CanReview() bool { return u.Has(ScopeCurvesReview, ScopeAdmin) }
+func (u *uiSession) CanReview() bool { return u.Has(lab.ScopeCurvesReview, lab.ScopeAdmin) }
 
 // csrfFor derives the synchronizer token of a session from its secret:
 // HMAC-SHA256(secret, label). It is bound to the session (another session,
@@ -92,25 +91,19 @@ func sessionOf(c echo.Context) *uiSession {
 // uiSessionMiddleware reads the session cookie and, when it names a live
 // session, puts the session (with its token's current scopes) on the
 // request. It never refuses: pages decide what a visitor without a session
-// sees. Every page also gets headers that keep it out of caches and frames
-// and allow no script at all.
-func (s *Server) uiSessionMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
+// sees. (Its security headers are set by securityHeadersMiddleware.)
+func (s *Pages) uiSessionMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 	return func(c echo.Context) error {
-		h := c.Response().Header()
-		h.Set("Content-Security-Policy", "default-src 'none'; style-src 'self'; img-src 'self'; form-action 'self'; frame-ancestors 'none'; base-uri 'none'")
-		h.Set("X-Content-Type-Options", "nosniff")
-		h.Set("Referrer-Policy", "same-origin")
-		h.Set("Cache-Control", "no-store")
 		if ck, err := c.Cookie(uiSessionCookie); err == nil && ck.Value != "" && len(ck.Value) <= 256 {
-			sess, err := s.db.LookupSession(c.Request().Context(), ck.Value)
+			sess, err := s.Lab.LookupSession(c.Request().Context(), ck.Value)
 			switch {
 			case err == nil:
 				u := &uiSession{secret: ck.Value, CSRF: csrfFor(ck.Value),
-					Principal: Principal{TokenID: sess.Token.ID, Name: sess.Token.Name, Scopes: sess.Token.Scopes}}
+					Principal: sess.Token}
 				c.Set("ui_session", u)
 				req := c.Request()
-				c.SetRequest(req.WithContext(context.WithValue(req.Context(), principalKey{}, u.Principal)))
-			case store.KindOf(err) == store.KindNotFound:
+				c.SetRequest(req.WithContext(s.WithPrincipal(req.Context(), u.Principal)))
+			case lab.KindOf(err) == lab.KindNotFound:
 				setCookie(c, uiSessionCookie, "", -1) // stale: forget it
 			default:
 				return err
@@ -123,7 +116,7 @@ func (s *Server) uiSessionMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 // requireSession sends a visitor without a session to the sign-in page
 // (GET) or refuses the request with 401 (anything else), and refuses a
 // session without one of scopes with 403.
-func (s *Server) requireSession(scopes ...string) echo.MiddlewareFunc {
+func (s *Pages) requireSession(scopes ...string) echo.MiddlewareFunc {
 	return func(next echo.HandlerFunc) echo.HandlerFunc {
 		return func(c echo.Context) error {
 			u := sessionOf(c)
@@ -131,10 +124,10 @@ func (s *Server) requireSession(scopes ...string) echo.MiddlewareFunc {
 				if c.Request().Method == http.MethodGet {
 					return c.Redirect(http.StatusSeeOther, "/ui/sign-in?next="+url.QueryEscape(c.Request().URL.RequestURI()))
 				}
-				return s.uiError(c, http.StatusUnauthorized, "You are not signed in, or your session has ended. Sign in again and repeat the action.")
+				return s.Error(c, http.StatusUnauthorized, "You are not signed in, or your session has ended. Sign in again and repeat the action.")
 			}
 			if len(scopes) > 0 && !u.Has(scopes...) {
-				return s.uiError(c, http.StatusForbidden, "Your token does not hold any of the scopes this page needs: "+strings.Join(scopes, ", ")+".")
+				return s.Error(c, http.StatusForbidden, "Your token does not hold any of the scopes this page needs: "+strings.Join(scopes, ", ")+".")
 			}
 			return next(c)
 		}
@@ -142,11 +135,11 @@ func (s *Server) requireSession(scopes ...string) echo.MiddlewareFunc {
 }
 
 // requireCSRF refuses a form whose synchronizer token is not the session's.
-func (s *Server) requireCSRF(next echo.HandlerFunc) echo.HandlerFunc {
+func (s *Pages) requireCSRF(next echo.HandlerFunc) echo.HandlerFunc {
 	return func(c echo.Context) error {
 		u := sessionOf(c)
 		if u == nil || !sameToken(c.FormValue(uiCSRFField), u.CSRF) {
-			return s.uiError(c, http.StatusForbidden, "The form's security token is missing or does not belong to your session. Reload the page and try again.")
+			return s.Error(c, http.StatusForbidden, "The form's security token is missing or does not belong to your session. Reload the page and try again.")
 		}
 		return next(c)
 	}
@@ -161,14 +154,14 @@ func safeNext(next string) string {
 }
 
 // signInPage shows the sign-in form, with a fresh form token in a cookie.
-func (s *Server) signInPage(c echo.Context) error {
+func (s *Pages) signInPage(c echo.Context) error {
 	if sessionOf(c) != nil {
 		return c.Redirect(http.StatusSeeOther, safeNext(c.QueryParam("next")))
 	}
 	return s.renderSignIn(c, http.StatusOK, "")
 }
 
-func (s *Server) renderSignIn(c echo.Context, status int, problem string) error {
+func (s *Pages) renderSignIn(c echo.Context, status int, problem string) error {
 	tok, err := randomToken()
 	if err != nil {
 		return err
@@ -180,22 +173,22 @@ func (s *Server) renderSignIn(c echo.Context, status int, problem string) error 
 }
 
 // signIn exchanges an API token for a session cookie.
-func (s *Server) signIn(c echo.Context) error {
+func (s *Pages) signIn(c echo.Context) error {
 	ck, err := c.Cookie(uiSignInCookie)
 	if err != nil || !sameToken(c.FormValue(uiCSRFField), ck.Value) {
-		return s.uiError(c, http.StatusForbidden, "The sign-in form's security token is missing or expired. Open the sign-in page again.")
+		return s.Error(c, http.StatusForbidden, "The sign-in form's security token is missing or expired. Open the sign-in page again.")
 	}
-	if secs := s.authFailureWait(c); secs > 0 {
-		return s.uiError(c, http.StatusTooManyRequests, "Too many failed sign-ins from this address. Wait "+strconv.Itoa(secs)+" s and try again.")
+	if secs := s.AuthFailureWait(c); secs > 0 {
+		return s.Error(c, http.StatusTooManyRequests, "Too many failed sign-ins from this address. Wait "+strconv.Itoa(secs)+" s and try again.")
 	}
 	token := strings.TrimSpace(c.FormValue("token"))
-	if _, ok := bearer("Bearer " + token); !ok {
+	if !s.ValidToken(token) {
 		return s.renderSignIn(c, http.StatusUnauthorized, "Enter an API token.")
 	}
-	secret, _, err := s.db.CreateSession(c.Request().Context(), token, uiSessionTTL)
+	secret, _, err := s.Lab.SignIn(c.Request().Context(), token, uiSessionTTL)
 	if err != nil {
-		if store.KindOf(err) == store.KindNotFound {
-			s.authFailed(c)
+		if lab.KindOf(err) == lab.KindNotFound {
+			s.AuthFailed(c)
 			return s.renderSignIn(c, http.StatusUnauthorized, "That token is unknown or revoked.")
 		}
 		return err
@@ -206,8 +199,8 @@ func (s *Server) signIn(c echo.Context) error {
 }
 
 // signOut ends the session.
-func (s *Server) signOut(c echo.Context) error {
-	if err := s.db.DeleteSession(c.Request().Context(), sessionOf(c).secret); err != nil {
+func (s *Pages) signOut(c echo.Context) error {
+	if err := s.Lab.SignOut(c.Request().Context(), sessionOf(c).secret); err != nil {
 		return err
 	}
 	setCookie(c, uiSessionCookie, "", -1)

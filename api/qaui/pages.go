@@ -1,4 +1,4 @@
-package api
+package qaui
 
 import (
 	"bytes"
@@ -20,7 +20,7 @@ import (
 
 	"curvekeeper/api/curveplot"
 	"curvekeeper/calib"
-	"curvekeeper/store"
+	"curvekeeper/lab"
 )
 
 // The QA pages are server-rendered with html/template from embedded files;
@@ -61,11 +61,11 @@ var uiPages = func() map[string]*template.Template {
 // statusWord names a review status for people.
 func statusWord(s string) string {
 	switch s {
-	case store.StatusPendingReview:
+	case lab.StatusPendingReview:
 		return "Pending review"
-	case store.StatusApproved:
+	case lab.StatusApproved:
 		return "Approved"
-	case store.StatusRejected:
+	case lab.StatusRejected:
 		return "Rejected"
 	}
 	return s
@@ -84,36 +84,36 @@ type pageData struct {
 }
 
 // render writes page name with data, always with the cautions.
-func (s *Server) render(c echo.Context, status int, name string, d pageData) error {
+func (s *Pages) render(c echo.Context, status int, name string, d pageData) error {
 	t, ok := uiPages[name]
 	if !ok {
-		return fmt.Errorf("api: no page template %q", name)
+		return fmt.Errorf("qaui: no page template %q", name)
 	}
 	d.Session = sessionOf(c)
 	d.Cautions = calib.Cautions()
 	d.Status = status
 	var buf bytes.Buffer
 	if err := t.Execute(&buf, d); err != nil {
-		return fmt.Errorf("api: render %s: %w", name, err)
+		return fmt.Errorf("qaui: render %s: %w", name, err)
 	}
 	return c.HTMLBlob(status, buf.Bytes())
 }
 
-// uiError renders an error page with the status and a message for people.
-func (s *Server) uiError(c echo.Context, status int, msg string) error {
+// Error renders an error page with the status and a message for people.
+func (s *Pages) Error(c echo.Context, status int, msg string) error {
 	return s.render(c, status, "error", pageData{Title: http.StatusText(status), Message: msg})
 }
 
-// uiFail renders errors of the QA pages as pages, not problems: a
+// Fail renders errors of the QA pages as pages, not problems: a
 // store error by its kind, anything else as an internal error whose cause
 // goes to the log only.
-func (s *Server) uiFail(c echo.Context, err error) error {
-	status := StatusOf(err)
+func (s *Pages) Fail(c echo.Context, err error) error {
+	status := s.Status(err)
 	if status == 0 {
 		status = http.StatusInternalServerError
 	}
-	msg := "Something went wrong on our side; the error is logged with request id " + requestID(c) + "."
-	var se *store.Error
+	msg := "Something went wrong on our side; the error is logged with request id " + s.RequestID(c) + "."
+	var se *lab.Error
 	switch {
 	case status == http.StatusServiceUnavailable:
 		msg = "The database cannot be reached just now. Try again in a moment."
@@ -124,29 +124,32 @@ func (s *Server) uiFail(c echo.Context, err error) error {
 	case status < 500:
 		msg = "The request was refused: " + http.StatusText(status) + "."
 	case status >= 500:
-		s.log.Error("ui request failed", "request_id", requestID(c), "error", err.Error())
+		s.Log.Error("ui request failed", "request_id", s.RequestID(c), "error", err.Error())
 	}
-	return s.uiError(c, status, msg)
+	return s.Error(c, status, msg)
 }
 
-// uiStatic serves the style sheet.
-func (s *Server) uiStyle(c echo.Context) error {
+// StylePath is where the style sheet is served (cached: see
+// securityHeaders).
+const StylePath = "/ui/style.css"
+
+// uiStyle serves the style sheet.
+func (s *Pages) uiStyle(c echo.Context) error {
 	b, err := uiFiles.ReadFile("ui/style.css")
 	if err != nil {
 		return err
 	}
-	c.Response().Header().Set("Cache-Control", "public, max-age=3600")
 	return c.Blob(http.StatusOK, "text/css; charset=utf-8", b)
 }
 
-// registerUI adds the QA pages under /ui/.
-func (s *Server) registerUI(e *echo.Echo) {
-	read := s.requireSession(ScopeResultsRead, ScopeCurvesReview, ScopeAdmin)
-	review := s.requireSession(ScopeCurvesReview, ScopeAdmin)
+// Register adds the QA pages under /ui/.
+func (s *Pages) Register(e *echo.Echo) {
+	read := s.requireSession(lab.ScopeResultsRead, lab.ScopeCurvesReview, lab.ScopeAdmin)
+	review := s.requireSession(lab.ScopeCurvesReview, lab.ScopeAdmin)
 	g := e.Group("/ui", s.uiSessionMiddleware)
 	g.GET("", func(c echo.Context) error { return c.Redirect(http.StatusSeeOther, "/ui/curves") })
 	g.GET("/", func(c echo.Context) error { return c.Redirect(http.StatusSeeOther, "/ui/curves") })
-	g.GET("/style.css", s.uiStyle)
+	g.GET(strings.TrimPrefix(StylePath, "/ui"), s.uiStyle)
 	g.GET("/sign-in", s.signInPage)
 	g.POST("/sign-in", s.signIn)
 	g.POST("/sign-out", s.signOut, s.requireSession(), s.requireCSRF)
@@ -161,7 +164,7 @@ func (s *Server) registerUI(e *echo.Echo) {
 // listView is the curve list page.
 type listView struct {
 	Filter     url.Values
-	Curves     []store.CurveSummary
+	Curves     []lab.CurveSummary
 	NextCursor string
 	First      bool
 	Problem    string
@@ -184,16 +187,16 @@ func parseDay(v string, end bool) (time.Time, error) {
 	return t, nil
 }
 
-func (s *Server) uiCurveList(c echo.Context) error {
+func (s *Pages) uiCurveList(c echo.Context) error {
 	q := c.QueryParams()
 	v := listView{Filter: url.Values{}, First: q.Get("cursor") == "",
-		Statuses: []string{store.StatusPendingReview, store.StatusApproved, store.StatusRejected}}
+		Statuses: []string{lab.StatusPendingReview, lab.StatusApproved, lab.StatusRejected}}
 	for _, k := range []string{"instrument", "analyte", "status", "verdict", "from", "to", "limit"} {
 		if x := strings.TrimSpace(q.Get(k)); x != "" {
 			v.Filter.Set(k, x)
 		}
 	}
-	f := store.CurveFilter{Instrument: v.Filter.Get("instrument"), Analyte: v.Filter.Get("analyte"),
+	f := lab.CurveFilter{Instrument: v.Filter.Get("instrument"), Analyte: v.Filter.Get("analyte"),
 		Status: v.Filter.Get("status"), Verdict: v.Filter.Get("verdict"), Cursor: q.Get("cursor"), Limit: 25}
 	if l := v.Filter.Get("limit"); l != "" {
 		n, err := strconv.Atoi(l)
@@ -211,14 +214,14 @@ func (s *Server) uiCurveList(c echo.Context) error {
 	}
 	status := http.StatusOK
 	if v.Problem == "" {
-		page, err := s.db.ListCurves(c.Request().Context(), f)
+		page, err := s.Lab.ListCurves(c.Request().Context(), f)
 		switch {
-		case store.KindOf(err) == store.KindInvalid:
-			var se *store.Error
+		case lab.KindOf(err) == lab.KindInvalid:
+			var se *lab.Error
 			errors.As(err, &se)
 			v.Problem = se.Message
 		case err != nil:
-			return s.uiFail(c, err)
+			return s.Fail(c, err)
 		default:
 			v.Curves, v.NextCursor = page.Curves, page.NextCursor
 		}
@@ -231,7 +234,7 @@ func (s *Server) uiCurveList(c echo.Context) error {
 
 // curveView is the curve page.
 type curveView struct {
-	Curve     *store.Curve
+	Curve     *lab.Curve
 	Alt       string
 	Equation  string
 	Audit     []auditRow
@@ -254,7 +257,7 @@ type auditPair struct{ K, V string }
 
 // auditRowOf renders an audit event for people: the actor's token name, the
 // entity, and the recorded facts one per line, keys sorted.
-func auditRowOf(e store.AuditEvent) auditRow {
+func auditRowOf(e lab.AuditEvent) auditRow {
 	r := auditRow{At: e.At, Who: e.Actor, Action: e.Action, Entity: e.EntityType + " " + e.EntityID}
 	if parts := strings.SplitN(e.Actor, ":", 3); len(parts) == 3 && parts[0] == "token" {
 		r.Who, r.TokenID = parts[1], parts[2]
@@ -301,9 +304,9 @@ func checkRows(r *calib.Report) []checkRow {
 	return rows
 }
 
-func (s *Server) curveView(c echo.Context, id string) (*curveView, error) {
+func (s *Pages) curveView(c echo.Context, id string) (*curveView, error) {
 	ctx := c.Request().Context()
-	cv, err := s.freshCurve(ctx, id)
+	cv, err := s.Curve(ctx, id)
 	if err != nil {
 		return nil, err
 	}
@@ -314,10 +317,10 @@ func (s *Server) curveView(c echo.Context, id string) (*curveView, error) {
 		}
 	}
 	v.Equation = equationText(cv.Report)
-	tq := url.Values{"instrument": {cv.Instrument}, "analyte": {cv.Analyte}, "parameter": {store.ParamSlope}}
+	tq := url.Values{"instrument": {cv.Instrument}, "analyte": {cv.Analyte}, "parameter": {lab.ParamSlope}}
 	v.TrendLink = template.URL("/ui/trends?" + tq.Encode())
 	if sessionOf(c).CanReview() {
-		events, err := s.db.ListAudit(ctx, id)
+		events, err := s.Lab.ListAudit(ctx, id)
 		if err != nil {
 			return nil, err
 		}
@@ -330,7 +333,7 @@ func (s *Server) curveView(c echo.Context, id string) (*curveView, error) {
 
 // equationText writes the fitted equation with 6 significant digits.
 func equationText(r *calib.Report) string {
-	b, ok := slopeOf(r)
+	b, ok := r.Slope()
 	if !ok {
 		return "no fit"
 	}
@@ -344,31 +347,31 @@ func equationText(r *calib.Report) string {
 	return "y = " + g(r.Coefficients[0]) + " + " + g(b) + "·x"
 }
 
-func (s *Server) uiCurvePage(c echo.Context) error {
+func (s *Pages) uiCurvePage(c echo.Context) error {
 	v, err := s.curveView(c, c.Param("id"))
 	if err != nil {
-		return s.uiFail(c, err)
+		return s.Fail(c, err)
 	}
 	v.Done = map[string]string{"approve": "approved", "reject": "rejected"}[c.QueryParam("reviewed")]
 	return s.render(c, http.StatusOK, "curve", pageData{Title: v.Curve.Instrument + " · " + v.Curve.Analyte, Nav: "curves", Data: v})
 }
 
-func (s *Server) uiCurvePlot(c echo.Context) error {
-	b, err := s.plot(c.Request().Context(), c.Param("id"), curveplot.FormatSVG)
+func (s *Pages) uiCurvePlot(c echo.Context) error {
+	b, err := s.Plot(c.Request().Context(), c.Param("id"))
 	if err != nil {
-		return s.uiFail(c, err)
+		return s.Fail(c, err)
 	}
 	return c.Blob(http.StatusOK, "image/svg+xml", b)
 }
 
 // uiReview approves or rejects a curve from its page; the reason is required.
-func (s *Server) uiReview(c echo.Context) error {
+func (s *Pages) uiReview(c echo.Context) error {
 	id := c.Param("id")
 	decision := c.FormValue("decision")
 	reason := strings.TrimSpace(c.FormValue("reason"))
 	problem := ""
 	switch {
-	case decision != store.DecisionApprove && decision != store.DecisionReject:
+	case decision != lab.DecisionApprove && decision != lab.DecisionReject:
 		problem = "Choose approve or reject."
 	case reason == "":
 		problem = "Give the reason for your decision; it is recorded in the audit trail."
@@ -376,24 +379,24 @@ func (s *Server) uiReview(c echo.Context) error {
 		problem = "The reason is longer than 2,000 characters."
 	}
 	if problem == "" {
-		_, err := s.db.ReviewCurve(c.Request().Context(), id, decision, reason, sessionOf(c).Principal.Actor())
-		s.curves.drop(id)
+		_, err := s.Lab.Review(c.Request().Context(), sessionOf(c).Principal, id, decision, reason)
+		s.Reviewed(id)
 		if err == nil {
 			return c.Redirect(http.StatusSeeOther, "/ui/curves/"+url.PathEscape(id)+"?reviewed="+decision)
 		}
-		var se *store.Error
-		if !errors.As(err, &se) || se.Kind == store.KindInternal || se.Kind == store.KindUnavailable || se.Kind == store.KindNotFound {
-			return s.uiFail(c, err)
+		var se *lab.Error
+		if !errors.As(err, &se) || se.Kind == lab.KindInternal || se.Kind == lab.KindUnavailable || se.Kind == lab.KindNotFound {
+			return s.Fail(c, err)
 		}
 		problem = se.Message
 	}
 	v, err := s.curveView(c, id)
 	if err != nil {
-		return s.uiFail(c, err)
+		return s.Fail(c, err)
 	}
 	v.Problem, v.Reason = problem, reason
 	status := http.StatusUnprocessableEntity
-	if v.Curve.Status != store.StatusPendingReview {
+	if v.Curve.Status != lab.StatusPendingReview {
 		status = http.StatusConflict
 	}
 	return s.render(c, status, "curve", pageData{Title: v.Curve.Instrument + " · " + v.Curve.Analyte, Nav: "curves", Data: v})
@@ -402,8 +405,8 @@ func (s *Server) uiReview(c echo.Context) error {
 // trendView is the trend page.
 type trendView struct {
 	Query    url.Values
-	Subjects []store.TrendSubject
-	Trend    *trendResult
+	Subjects []lab.TrendSubject
+	Trend    *lab.Trend
 	Params   []string
 	Alt      string
 	PlotURL  template.URL
@@ -412,25 +415,25 @@ type trendView struct {
 }
 
 type trendRow struct {
-	trendPoint
+	lab.TrendPoint
 	Z    float64
 	HasZ bool
 }
 
 // trendQueryFrom reads the trend page's query parameters.
-func trendQueryFrom(q url.Values) (trendQuery, url.Values, string) {
+func trendQueryFrom(q url.Values) (lab.TrendQuery, url.Values, string) {
 	keep := url.Values{}
 	for _, k := range []string{"instrument", "analyte", "parameter", "from", "to", "baseline"} {
 		if x := strings.TrimSpace(q.Get(k)); x != "" {
 			keep.Set(k, x)
 		}
 	}
-	tq := trendQuery{Instrument: keep.Get("instrument"), Analyte: keep.Get("analyte"), Parameter: keep.Get("parameter")}
+	tq := lab.TrendQuery{Instrument: keep.Get("instrument"), Analyte: keep.Get("analyte"), Parameter: keep.Get("parameter")}
 	if tq.Parameter == "" {
-		tq.Parameter = store.ParamSlope
+		tq.Parameter = lab.ParamSlope
 	}
 	valid := false
-	for _, p := range store.TrendParameters {
+	for _, p := range lab.TrendParameters {
 		valid = valid || p == tq.Parameter
 	}
 	if !valid {
@@ -453,27 +456,27 @@ func trendQueryFrom(q url.Values) (trendQuery, url.Values, string) {
 	return tq, keep, ""
 }
 
-func (s *Server) uiTrendPage(c echo.Context) error {
+func (s *Pages) uiTrendPage(c echo.Context) error {
 	ctx := c.Request().Context()
 	tq, keep, problem := trendQueryFrom(c.QueryParams())
-	v := trendView{Query: keep, Params: store.TrendParameters, Problem: problem}
-	subjects, err := s.db.TrendSubjects(ctx)
+	v := trendView{Query: keep, Params: lab.TrendParameters, Problem: problem}
+	subjects, err := s.Lab.TrendSubjects(ctx)
 	if err != nil {
-		return s.uiFail(c, err)
+		return s.Fail(c, err)
 	}
 	v.Subjects = subjects
 	status := http.StatusOK
 	if problem != "" {
 		status = http.StatusBadRequest
 	} else if tq.Instrument != "" && tq.Analyte != "" {
-		t, err := s.computeTrend(ctx, tq)
+		t, err := s.Lab.Trend(ctx, tq)
 		if err != nil {
-			return s.uiFail(c, err)
+			return s.Fail(c, err)
 		}
 		v.Trend, v.Alt = t, trendAltText(t)
 		v.PlotURL = template.URL("/ui/trends/plot.svg?" + keep.Encode())
 		for _, p := range t.Points {
-			r := trendRow{trendPoint: p}
+			r := trendRow{TrendPoint: p}
 			if t.HasBaseline && p.HasValue {
 				r.Z, r.HasZ = t.Baseline.Z(p.Value), true
 				if math.IsNaN(r.Z) || math.IsInf(r.Z, 0) {
@@ -490,18 +493,51 @@ func (s *Server) uiTrendPage(c echo.Context) error {
 	return s.render(c, status, "trend", pageData{Title: title, Nav: "trends", Data: v})
 }
 
-func (s *Server) uiTrendPlot(c echo.Context) error {
+func (s *Pages) uiTrendPlot(c echo.Context) error {
 	tq, _, problem := trendQueryFrom(c.QueryParams())
 	if problem != "" || tq.Instrument == "" || tq.Analyte == "" {
-		return s.uiError(c, http.StatusBadRequest, "Name an instrument and an analyte. "+problem)
+		return s.Error(c, http.StatusBadRequest, "Name an instrument and an analyte. "+problem)
 	}
-	t, err := s.computeTrend(c.Request().Context(), tq)
+	t, err := s.Lab.Trend(c.Request().Context(), tq)
 	if err != nil {
-		return s.uiFail(c, err)
+		return s.Fail(c, err)
 	}
-	b, err := trendChart(t)
+	b, err := s.TrendChart(t)
 	if err != nil {
-		return s.uiFail(c, err)
+		return s.Fail(c, err)
 	}
 	return c.Blob(http.StatusOK, "image/svg+xml", b)
 }
+
+// trendAltText describes the control chart of t in words.
+func trendAltText(t *lab.Trend) string {
+	evaluated := 0
+	for _, p := range t.Points {
+		if p.Evaluated {
+			evaluated++
+		}
+	}
+	txt := fmt.Sprintf("Control chart of the %s of %s on %s: %d curve value(s) in time order.", t.Query.Parameter, t.Query.Analyte, t.Query.Instrument, evaluated)
+	if !t.HasBaseline {
+		return txt + " No baseline, so no control limits are drawn. " + curveplot.Footer
+	}
+	l := t.Baseline.Limits()
+	txt += fmt.Sprintf(" Centre line %s (mean of %d approved curves), warning limits %s to %s (±2 SD), action limits %s to %s (±3 SD).",
+		g4(l.Centre), t.Baseline.N, g4(l.WarningLow), g4(l.WarningHigh), g4(l.ActionLow), g4(l.ActionHigh))
+	reject, warn := 0, 0
+	for _, v := range t.Violations {
+		if v.Reject {
+			reject++
+		} else {
+			warn++
+		}
+	}
+	if reject+warn == 0 {
+		txt += " No control rule is violated."
+	} else {
+		txt += fmt.Sprintf(" %d reject-rule violation(s) and %d warning(s), marked as squares and listed below the chart.", reject, warn)
+	}
+	return txt + " " + curveplot.Footer
+}
+
+func g4(v float64) string { return strconv.FormatFloat(v, 'g', 4, 64) }

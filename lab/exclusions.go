@@ -1,6 +1,8 @@
-package store
+package lab
 
 import (
+	"context"
+	"errors"
 	"fmt"
 	"math"
 	"sort"
@@ -159,4 +161,30 @@ func ruleError(issues []FieldIssue) error {
 		msg = fmt.Sprintf("%s (and %d more)", msg, len(issues)-1)
 	}
 	return &Error{Kind: KindInvalid, Field: issues[0].Field, Message: msg, Fields: issues}
+}
+
+// Exclude revises curve c without the readings in points on behalf of p:
+// the rules of PlanExclusion decide what may be left out, the kept readings
+// are fitted again with the curve's method revision, and the revision is
+// stored pending review. It returns the revision's id.
+func (s *Service) Exclude(ctx context.Context, p Principal, c *Curve, points []ExcludedPoint, reason, rangeReason string) (string, error) {
+	m, err := s.GetMethodRevision(ctx, c.Method, c.MethodRevision)
+	if err != nil {
+		return "", err
+	}
+	fitPts, excluded, err := PlanExclusion(c.Report.Points, points, rangeReason, m.Acceptance.MinLevels)
+	if err != nil {
+		return "", err
+	}
+	opts := m.Options()
+	rep, err := calib.Fit(fitPts, opts)
+	if err != nil {
+		var ie *calib.InputError
+		if !errors.As(err, &ie) {
+			return "", fmt.Errorf("lab: refit curve %s: %w", c.ID, err)
+		}
+		rep = calib.FailedReport(fitPts, opts, err)
+	}
+	return s.store.CreateRevision(ctx, RevisionInput{OriginalID: c.ID, Report: rep, Excluded: excluded,
+		Reason: reason, RangeReason: rangeReason, Actor: p.Actor()})
 }

@@ -1,8 +1,10 @@
-package store
+package lab
 
 import (
 	"errors"
 	"fmt"
+	"strconv"
+	"strings"
 )
 
 // Kind classifies an error for the caller; api maps each kind to one HTTP
@@ -25,9 +27,29 @@ type Error struct {
 	Field   string // JSON pointer, e.g. "/standards/2/concentration"; may be empty
 	Message string
 	Err     error // the cause, for the log; may be nil
+	// In says where Field was given: in the body (the default) or as a
+	// parameter of the request's query, path or headers.
+	In Place
 	// Fields lists every offending field when there is more than one (rule
 	// breaches checked together); Field and Message then repeat the first.
 	Fields []FieldIssue
+}
+
+// Place is where an input was given.
+type Place int
+
+// The places of an input.
+const (
+	InBody   Place = iota // a field of the body; Field is a JSON pointer
+	InQuery               // a query parameter; Field is "/" and its name
+	InPath                // a path parameter; Field is "/" and its name
+	InHeader              // a header; Field is "/" and its name
+)
+
+// ParamError makes an *Error of kind k about the request parameter name
+// given in place in.
+func ParamError(k Kind, in Place, name, format string, args ...any) error {
+	return &Error{Kind: k, In: in, Field: "/" + name, Message: fmt.Sprintf(format, args...)}
 }
 
 // FieldIssue is one offending field and the rule it breaks.
@@ -63,3 +85,22 @@ func KindOf(err error) Kind {
 	}
 	return KindInternal
 }
+
+// Pointer builds a JSON pointer (RFC 6901) from reference tokens (strings
+// and ints), e.g. Pointer("standards", 2, "level") is "/standards/2/level".
+func Pointer(tokens ...any) string {
+	var b strings.Builder
+	for _, t := range tokens {
+		b.WriteByte('/')
+		switch v := t.(type) {
+		case int:
+			b.WriteString(strconv.Itoa(v))
+		case string:
+			b.WriteString(pointerEscaper.Replace(v))
+		}
+	}
+	return b.String()
+}
+
+// pointerEscaper escapes a reference token of a JSON pointer (RFC 6901).
+var pointerEscaper = strings.NewReplacer("~", "~0", "/", "~1")

@@ -1,10 +1,9 @@
-package api
+package lab
 
 import (
 	"slices"
 
 	"curvekeeper/calib"
-	"curvekeeper/store"
 )
 
 // driftHistory is how many of the most recent approved curves a new curve's
@@ -14,15 +13,15 @@ const driftHistory = 20
 // addDriftChecks adds the drift check to each fitted curve of a new run: its
 // slope against the slopes of the same instrument and analyte's most recent
 // approved curves (hist, per analyte, read with the method before the
-// transaction opens; see store.ReadForRun). The check is advisory unless the
+// transaction opens; see RunStore.ReadForRun). The check is advisory unless the
 // method makes it mandatory; an advisory check that cannot be computed (too
 // little history) is left out, a mandatory one is reported as not computed
 // and fails the verdict, as every mandatory check does.
-func addDriftChecks(m *store.Method, hist map[string][]float64, curves []store.CurveInput) {
+func addDriftChecks(m *Method, hist map[string][]float64, curves []CurveInput) {
 	mandatory := slices.Contains(m.Options().Policy.Mandatory, calib.CheckDrift)
 	for _, c := range curves {
 		r := c.Report
-		slope, ok := slopeOf(r)
+		slope, ok := r.Slope()
 		if !ok {
 			continue
 		}
@@ -36,19 +35,7 @@ func addDriftChecks(m *store.Method, hist map[string][]float64, curves []store.C
 		}
 		r.Checks = append(r.Checks, ch)
 		if mandatory && !ch.Passed {
-			r.Verdict = store.VerdictFail
+			r.Verdict = VerdictFail
 		}
 	}
-}
-
-// slopeOf returns b1 of a fitted report.
-func slopeOf(r *calib.Report) (float64, bool) {
-	c := r.Coefficients
-	switch {
-	case r.Model == calib.LinearOrigin && len(c) == 1:
-		return c[0], true
-	case (r.Model == calib.Linear && len(c) == 2) || (r.Model == calib.Quadratic && len(c) == 3):
-		return c[1], true
-	}
-	return 0, false
 }

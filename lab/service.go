@@ -1,0 +1,133 @@
+// Package lab holds the laboratory's rules: a run against its method,
+// ingest (validate, fit each analyte, judge drift, decide release),
+// predictions, exclusions, verifications, release states, trends and
+// review; the error kinds; the scopes and the caller. It imports calib and
+// no HTTP or SQL package: the store implements the persistence interfaces
+// declared here, where they are used, and the api translates HTTP into calls
+// of Service.
+//
+// Every fit and reported value is an aid: local accreditation, regulation
+// and the laboratory's SOP come first, and a qualified person reviews the
+// results.
+package lab
+
+import (
+	"context"
+	"time"
+)
+
+// Reader is what the lab reads as stored, with no rule to apply on the
+// way: a Service hands these reads straight through.
+type Reader interface {
+	GetRun(ctx context.Context, id string) (*Run, error)
+	GetCurve(ctx context.Context, id string) (*Curve, error)
+	CurveStatus(ctx context.Context, id string) (string, error)
+	ListCurves(ctx context.Context, f CurveFilter) (*CurvePage, error)
+	ListAudit(ctx context.Context, curveID string) ([]AuditEvent, error)
+	GetMethod(ctx context.Context, name string) (*Method, error)
+	GetMethodRevision(ctx context.Context, name string, rev int) (*Method, error)
+	ListMethods(ctx context.Context) ([]Method, error)
+	ListVerifications(ctx context.Context, curveID string) ([]Verification, error)
+	GetExclusion(ctx context.Context, id string) (*Exclusion, error)
+	CurveInForce(ctx context.Context, instrument, analyte string, at time.Time) (*InForce, error)
+	RunResults(ctx context.Context, runID string) ([]Result, error)
+	SampleResults(ctx context.Context, sampleID string) ([]Result, error)
+	ResultFeed(ctx context.Context, since string, limit int) (*FeedPage, error)
+	TrendSeries(ctx context.Context, f TrendFilter) (curves []CurveSummary, truncated bool, err error)
+	TrendSubjects(ctx context.Context) ([]TrendSubject, error)
+	// LookupToken returns the caller a live token's secret names
+	// (KindNotFound for an unknown or revoked one).
+	LookupToken(ctx context.Context, secret string) (Principal, error)
+	// LookupTokenAndCurveStatus is LookupToken and CurveStatus in one
+	// round trip; the status is "" when curveID names no curve.
+	LookupTokenAndCurveStatus(ctx context.Context, secret, curveID string) (Principal, string, error)
+	LookupSession(ctx context.Context, secret string) (Session, error)
+	Ping(ctx context.Context) error
+	CheckSchema(ctx context.Context) error
+	RunWriteStats() RunWriteStats
+}
+
+// Writer is what the lab writes; each write is one transaction with its
+// audit row, and the Service's methods apply the rules around it.
+type Writer interface {
+	RunStore
+	CreateMethod(ctx context.Context, in MethodInput, actor string) (m *Method, created bool, err error)
+	CreateToken(ctx context.Context, name string, scopes []string, actor string) (id, secret string, err error)
+	RevokeToken(ctx context.Context, id, actor string) error
+	ReviewCurve(ctx context.Context, id, decision, reason, actor string) (*Review, error)
+	CreateVerification(ctx context.Context, in VerificationInput) (*Verification, error)
+	CreateRevision(ctx context.Context, in RevisionInput) (string, error)
+	AddSamples(ctx context.Context, runID string, samples []Sample, actor string) ([]Result, error)
+	CreateSession(ctx context.Context, tokenSecret string, ttl time.Duration) (string, Principal, error)
+	DeleteSession(ctx context.Context, secret string) error
+}
+
+// Store is every persistence the lab's rules need, and the database's
+// replication as the api sees it.
+type Store interface {
+	Reader
+	Writer
+	Topology
+}
+
+// Service applies the lab's rules over a store. Its reads are the
+// Reader's; its writes are its own methods.
+type Service struct {
+	Reader
+	store Writer
+	topo  Topology
+}
+
+// NewService returns the rules over st.
+func NewService(st Store) *Service { return &Service{Reader: st, store: st, topo: st} }
+
+// Topology returns the database's replication, for the api.
+func (s *Service) Topology() Topology { return s.topo }
+
+// DefineMethod stores a method definition as its next revision (see
+// Writer.CreateMethod), on behalf of p.
+func (s *Service) DefineMethod(ctx context.Context, p Principal, in MethodInput) (*Method, bool, error) {
+	return s.store.CreateMethod(ctx, in, p.Actor())
+}
+
+// IssueToken issues a token with name and scopes on behalf of p and returns
+// its id and its secret, shown only here.
+func (s *Service) IssueToken(ctx context.Context, p Principal, name string, scopes []string) (id, secret string, err error) {
+	return s.store.CreateToken(ctx, name, scopes, p.Actor())
+}
+
+// RevokeToken revokes token id on behalf of p.
+func (s *Service) RevokeToken(ctx context.Context, p Principal, id string) error {
+	return s.store.RevokeToken(ctx, id, p.Actor())
+}
+
+// Review approves or rejects curve id, once, on behalf of p. A curve that
+// failed its checks can be approved only with a reason; its results move
+// with the review (release states).
+func (s *Service) Review(ctx context.Context, p Principal, id, decision, reason string) (*Review, error) {
+	return s.store.ReviewCurve(ctx, id, decision, reason, p.Actor())
+}
+
+// Verify records a verification standard against a curve on behalf of p;
+// the rules (the curve is current, fitted, not rejected, and the standard
+// measured after it) are checked with the curve locked.
+func (s *Service) Verify(ctx context.Context, p Principal, in VerificationInput) (*Verification, error) {
+	in.Actor = p.Actor()
+	return s.store.CreateVerification(ctx, in)
+}
+
+// AddSamples quantifies samples posted after their run against its curves
+// on behalf of p.
+func (s *Service) AddSamples(ctx context.Context, p Principal, runID string, samples []Sample) ([]Result, error) {
+	return s.store.AddSamples(ctx, runID, samples, p.Actor())
+}
+
+// SignIn exchanges a token's secret for a session of the QA pages.
+func (s *Service) SignIn(ctx context.Context, tokenSecret string, ttl time.Duration) (string, Principal, error) {
+	return s.store.CreateSession(ctx, tokenSecret, ttl)
+}
+
+// SignOut ends a session of the QA pages.
+func (s *Service) SignOut(ctx context.Context, secret string) error {
+	return s.store.DeleteSession(ctx, secret)
+}
