@@ -37,6 +37,7 @@ const (
 	CheckRSquared              CheckName = "r_squared"
 	CheckRelativeStandardError CheckName = "relative_standard_error"
 	CheckResidualRuns          CheckName = "residual_runs"
+	CheckStandardsInDate       CheckName = "standards_in_date"
 )
 
 // Valid indicates whether the value is a known member of the CheckName enum.
@@ -65,6 +66,8 @@ func (e CheckName) Valid() bool {
 	case CheckRelativeStandardError:
 		return true
 	case CheckResidualRuns:
+		return true
+	case CheckStandardsInDate:
 		return true
 	default:
 		return false
@@ -152,6 +155,39 @@ func (e HealthStatus) Valid() bool {
 	case HealthOK:
 		return true
 	case HealthReady:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for MethodExpiredStandards.
+const (
+	MethodExpiredStandardsAdvisory MethodExpiredStandards = "advisory"
+)
+
+// Valid indicates whether the value is a known member of the MethodExpiredStandards enum.
+func (e MethodExpiredStandards) Valid() bool {
+	switch e {
+	case MethodExpiredStandardsAdvisory:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for MethodRequestExpiredStandards.
+const (
+	MethodRequestExpiredStandardsAdvisory  MethodRequestExpiredStandards = "advisory"
+	MethodRequestExpiredStandardsMandatory MethodRequestExpiredStandards = "mandatory"
+)
+
+// Valid indicates whether the value is a known member of the MethodRequestExpiredStandards enum.
+func (e MethodRequestExpiredStandards) Valid() bool {
+	switch e {
+	case MethodRequestExpiredStandardsAdvisory:
+		return true
+	case MethodRequestExpiredStandardsMandatory:
 		return true
 	default:
 		return false
@@ -329,6 +365,27 @@ func (e SigmaBasis) Valid() bool {
 	case SigmaBasisLowestLevelSd:
 		return true
 	case SigmaBasisResidualSd:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for StandardMaterialKind.
+const (
+	MaterialLevel     StandardMaterialKind = "calibration_level"
+	MaterialReference StandardMaterialKind = "reference_material"
+	MaterialStock     StandardMaterialKind = "stock_solution"
+)
+
+// Valid indicates whether the value is a known member of the StandardMaterialKind enum.
+func (e StandardMaterialKind) Valid() bool {
+	switch e {
+	case MaterialLevel:
+		return true
+	case MaterialReference:
+		return true
+	case MaterialStock:
 		return true
 	default:
 		return false
@@ -551,6 +608,9 @@ type Check struct {
 	// `GET /v1/trends`). It is advisory unless the method lists it as
 	// mandatory, and it is left out when fewer than 10 approved curves
 	// exist, unless it is mandatory (then it is reported as not computed).
+	// `standards_in_date` is computed at ingest when the run names its
+	// standard materials; the method's `expired_standards` makes it
+	// mandatory (the default) or advisory, not this list.
 	Name   CheckName `json:"name"`
 	Passed bool      `json:"passed"`
 
@@ -571,6 +631,9 @@ type Check struct {
 // `GET /v1/trends`). It is advisory unless the method lists it as
 // mandatory, and it is left out when fewer than 10 approved curves
 // exist, unless it is mandatory (then it is reported as not computed).
+// `standards_in_date` is computed at ingest when the run names its
+// standard materials; the method's `expired_standards` makes it
+// mandatory (the default) or advisory, not this list.
 type CheckName string
 
 // Concentration A nominal concentration, in the analyte's unit.
@@ -962,6 +1025,9 @@ type Method struct {
 	// Description Empty when none was given.
 	Description string `json:"description"`
 
+	// ExpiredStandards Present, as `advisory`, only when the method makes the standards check advisory.
+	ExpiredStandards *MethodExpiredStandards `json:"expired_standards,omitempty"`
+
 	// MaxCurveAgeHours Null when curves do not expire.
 	MaxCurveAgeHours *float64 `json:"max_curve_age_hours"`
 
@@ -989,6 +1055,9 @@ type Method struct {
 	WeightingOptions WeightingOptions `json:"weighting_options"`
 }
 
+// MethodExpiredStandards Present, as `advisory`, only when the method makes the standards check advisory.
+type MethodExpiredStandards string
+
 // MethodList defines model for MethodList.
 type MethodList struct {
 	Methods []Method `json:"methods"`
@@ -1005,6 +1074,10 @@ type MethodRequest struct {
 
 	// Description Free text for people; no control characters except tab, line feed and carriage return.
 	Description *Text `json:"description,omitempty"`
+
+	// ExpiredStandards Whether a curve whose run used an out-of-date standard material
+	// fails (`mandatory`, the default) or only reports it (`advisory`).
+	ExpiredStandards *MethodRequestExpiredStandards `json:"expired_standards,omitempty"`
 
 	// MaxCurveAgeHours How long after acquisition a curve stays in force; no limit when absent.
 	MaxCurveAgeHours *float64 `json:"max_curve_age_hours,omitempty"`
@@ -1035,6 +1108,10 @@ type MethodRequest struct {
 	// WeightingOptions A method's weighting options; a field left out takes its default.
 	WeightingOptions *WeightingOptionsInput `json:"weighting_options,omitempty"`
 }
+
+// MethodRequestExpiredStandards Whether a curve whose run used an out-of-date standard material
+// fails (`mandatory`, the default) or only reports it (`advisory`).
+type MethodRequestExpiredStandards string
 
 // Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 // y = b0 + b1·x + b2·x² (ISO 8466-2).
@@ -1112,6 +1189,14 @@ type PredictionSample struct {
 
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
+}
+
+// PreparationStep An aliquot of the parent made up to a final volume, each volume in mL with its tolerance ± (rectangular).
+type PreparationStep struct {
+	AliquotMl    float64 `json:"aliquot_ml"`
+	AliquotTolMl float64 `json:"aliquot_tol_ml"`
+	FinalMl      float64 `json:"final_ml"`
+	FinalTolMl   float64 `json:"final_tol_ml"`
 }
 
 // Problem RFC 9457 problem details.
@@ -1313,9 +1398,12 @@ type Run struct {
 	MethodRevision int        `json:"method_revision"`
 
 	// Operator Null when none was given.
-	Operator  *string     `json:"operator"`
-	Samples   []RunSample `json:"samples"`
-	Standards []Standard  `json:"standards"`
+	Operator *string     `json:"operator"`
+	Samples  []RunSample `json:"samples"`
+
+	// StandardMaterials The standard materials the run named; absent when none.
+	StandardMaterials *[]string  `json:"standard_materials,omitempty"`
+	Standards         []Standard `json:"standards"`
 }
 
 // RunFormat The content type the run was posted in.
@@ -1360,6 +1448,14 @@ type RunRequest struct {
 	// Operator Who ran the instrument; an identifier that may also hold `@`.
 	Operator *Operator         `json:"operator,omitempty"`
 	Samples  *[]RunSampleInput `json:"samples,omitempty"`
+
+	// StandardMaterials Codes of the standard materials the run's standards were made
+	// from (see /v1/standard-materials). Each curve of a material's
+	// analyte gets the check `standards_in_date`: every material and
+	// every material it was prepared from within its expiry at
+	// `acquired_at`, and prepared before its parent expired. The check
+	// is mandatory unless the method makes it advisory.
+	StandardMaterials *[]Identifier `json:"standard_materials,omitempty"`
 
 	// Standards One entry per analyte and level.
 	Standards []StandardInput `json:"standards"`
@@ -1499,6 +1595,72 @@ type StandardInput struct {
 
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
+}
+
+// StandardMaterial defines model for StandardMaterial.
+type StandardMaterial struct {
+	Analyte             string               `json:"analyte"`
+	Code                string               `json:"code"`
+	CoverageFactor      *float64             `json:"coverage_factor,omitempty"`
+	CreatedAt           time.Time            `json:"created_at"`
+	CreatedBy           string               `json:"created_by"`
+	ExpandedUncertainty *float64             `json:"expanded_uncertainty,omitempty"`
+	ExpiresAt           time.Time            `json:"expires_at"`
+	Kind                StandardMaterialKind `json:"kind"`
+	Level               *string              `json:"level,omitempty"`
+	Lot                 string               `json:"lot"`
+	Preparation         []PreparationStep    `json:"preparation"`
+	PreparedAt          *time.Time           `json:"prepared_at,omitempty"`
+	PreparedFrom        *string              `json:"prepared_from,omitempty"`
+
+	// RelativeUncertainty u(value)/value from the certificate and the preparation.
+	RelativeUncertainty float64  `json:"relative_uncertainty"`
+	Supplier            string   `json:"supplier"`
+	Tolerance           *float64 `json:"tolerance,omitempty"`
+	Unit                string   `json:"unit"`
+	Value               float64  `json:"value"`
+}
+
+// StandardMaterialKind defines model for StandardMaterialKind.
+type StandardMaterialKind string
+
+// StandardMaterialList defines model for StandardMaterialList.
+type StandardMaterialList struct {
+	Materials []StandardMaterial `json:"materials"`
+}
+
+// StandardMaterialRequest defines model for StandardMaterialRequest.
+type StandardMaterialRequest struct {
+	// Analyte Required unless prepared; a prepared material takes its parent's.
+	Analyte *Identifier `json:"analyte,omitempty"`
+
+	// Code A name of an instrument, analyte, method, level or sample.
+	Code           Identifier `json:"code"`
+	CoverageFactor *float64   `json:"coverage_factor,omitempty"`
+
+	// ExpandedUncertainty The certificate's expanded uncertainty U, with coverage_factor.
+	ExpandedUncertainty *float64             `json:"expanded_uncertainty,omitempty"`
+	ExpiresAt           time.Time            `json:"expires_at"`
+	Kind                StandardMaterialKind `json:"kind"`
+
+	// Level The calibration level this material is (calibration_level only).
+	Level       *Identifier        `json:"level,omitempty"`
+	Lot         *string            `json:"lot,omitempty"`
+	Preparation *[]PreparationStep `json:"preparation,omitempty"`
+	PreparedAt  *time.Time         `json:"prepared_at,omitempty"`
+
+	// PreparedFrom A name of an instrument, analyte, method, level or sample.
+	PreparedFrom *Identifier `json:"prepared_from,omitempty"`
+	Supplier     *string     `json:"supplier,omitempty"`
+
+	// Tolerance The certificate's tolerance ± a, instead of U and k.
+	Tolerance *float64 `json:"tolerance,omitempty"`
+
+	// Unit Required unless prepared; a prepared material takes its parent's.
+	Unit *Unit `json:"unit,omitempty"`
+
+	// Value The certificate value; left out for a prepared material.
+	Value *float64 `json:"value,omitempty"`
 }
 
 // Text Free text for people; no control characters except tab, line feed and carriage return.
@@ -1922,6 +2084,9 @@ type CreateRunJSONRequestBody = RunRequest
 // CreateRunSamplesJSONRequestBody defines body for CreateRunSamples for application/json ContentType.
 type CreateRunSamplesJSONRequestBody = SamplesRequest
 
+// CreateStandardMaterialJSONRequestBody defines body for CreateStandardMaterial for application/json ContentType.
+type CreateStandardMaterialJSONRequestBody = StandardMaterialRequest
+
 // CreateTokenJSONRequestBody defines body for CreateToken for application/json ContentType.
 type CreateTokenJSONRequestBody = TokenRequest
 
@@ -2002,6 +2167,15 @@ type ServerInterface interface {
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx echo.Context, sampleID Identifier) error
+	// ListStandardMaterials All standard materials
+	// (GET /v1/standard-materials)
+	ListStandardMaterials(ctx echo.Context) error
+	// CreateStandardMaterial Record a standard material
+	// (POST /v1/standard-materials)
+	CreateStandardMaterial(ctx echo.Context) error
+	// GetStandardMaterial One standard material
+	// (GET /v1/standard-materials/{code})
+	GetStandardMaterial(ctx echo.Context, code Identifier) error
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx echo.Context) error
@@ -2511,6 +2685,40 @@ func (w *ServerInterfaceWrapper) GetSampleResults(ctx echo.Context) error {
 	return err
 }
 
+// ListStandardMaterials converts echo context to params.
+func (w *ServerInterfaceWrapper) ListStandardMaterials(ctx echo.Context) error {
+	var err error
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListStandardMaterials(ctx)
+	return err
+}
+
+// CreateStandardMaterial converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateStandardMaterial(ctx echo.Context) error {
+	var err error
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateStandardMaterial(ctx)
+	return err
+}
+
+// GetStandardMaterial converts echo context to params.
+func (w *ServerInterfaceWrapper) GetStandardMaterial(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "code" -------------
+	var code Identifier
+
+	err = runtime.BindStyledParameterWithOptions("simple", "code", ctx.Param("code"), &code, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter code: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetStandardMaterial(ctx, code)
+	return err
+}
+
 // CreateToken converts echo context to params.
 func (w *ServerInterfaceWrapper) CreateToken(ctx echo.Context) error {
 	var err error
@@ -2716,6 +2924,9 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/methods", wrapper.ListMethods, options.OperationMiddlewares["listMethods"]...)
 	router.POST(options.BaseURL+"/v1/methods", wrapper.CreateMethod, options.OperationMiddlewares["createMethod"]...)
 	router.GET(options.BaseURL+"/v1/methods/:name", wrapper.GetMethod, options.OperationMiddlewares["getMethod"]...)
+	router.GET(options.BaseURL+"/v1/standard-materials", wrapper.ListStandardMaterials, options.OperationMiddlewares["listStandardMaterials"]...)
+	router.POST(options.BaseURL+"/v1/standard-materials", wrapper.CreateStandardMaterial, options.OperationMiddlewares["createStandardMaterial"]...)
+	router.GET(options.BaseURL+"/v1/standard-materials/:code", wrapper.GetStandardMaterial, options.OperationMiddlewares["getStandardMaterial"]...)
 	router.POST(options.BaseURL+"/v1/tokens", wrapper.CreateToken, options.OperationMiddlewares["createToken"]...)
 	router.DELETE(options.BaseURL+"/v1/tokens/:id", wrapper.DeleteToken, options.OperationMiddlewares["deleteToken"]...)
 
@@ -6302,6 +6513,456 @@ func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSa
 	return err
 }
 
+type ListStandardMaterialsRequestObject struct {
+}
+
+type ListStandardMaterialsResponseObject interface {
+	VisitListStandardMaterialsResponse(w http.ResponseWriter) error
+}
+
+type ListStandardMaterials200JSONResponse StandardMaterialList
+
+func (response ListStandardMaterials200JSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials400ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials401ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials403ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials429ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials500ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials503ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterialRequestObject struct {
+	Body *CreateStandardMaterialJSONRequestBody
+}
+
+type CreateStandardMaterialResponseObject interface {
+	VisitCreateStandardMaterialResponse(w http.ResponseWriter) error
+}
+
+type CreateStandardMaterial201ResponseHeaders struct {
+	Location string
+}
+
+type CreateStandardMaterial201JSONResponse struct {
+	Body    StandardMaterial
+	Headers CreateStandardMaterial201ResponseHeaders
+}
+
+func (response CreateStandardMaterial201JSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.Header().Set("Location", fmt.Sprint(response.Headers.Location))
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial400ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial401ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial403ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial409ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial413ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial415ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial422ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial429ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial500ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial503ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterialRequestObject struct {
+	Code Identifier `json:"code"`
+}
+
+type GetStandardMaterialResponseObject interface {
+	VisitGetStandardMaterialResponse(w http.ResponseWriter) error
+}
+
+type GetStandardMaterial200JSONResponse StandardMaterial
+
+func (response GetStandardMaterial200JSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial400ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial401ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial403ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial404ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial429ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial500ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial503ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type CreateTokenRequestObject struct {
 	Body *CreateTokenJSONRequestBody
 }
@@ -6927,6 +7588,15 @@ type StrictServerInterface interface {
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx context.Context, request GetSampleResultsRequestObject) (GetSampleResultsResponseObject, error)
+	// ListStandardMaterials All standard materials
+	// (GET /v1/standard-materials)
+	ListStandardMaterials(ctx context.Context, request ListStandardMaterialsRequestObject) (ListStandardMaterialsResponseObject, error)
+	// CreateStandardMaterial Record a standard material
+	// (POST /v1/standard-materials)
+	CreateStandardMaterial(ctx context.Context, request CreateStandardMaterialRequestObject) (CreateStandardMaterialResponseObject, error)
+	// GetStandardMaterial One standard material
+	// (GET /v1/standard-materials/{code})
+	GetStandardMaterial(ctx context.Context, request GetStandardMaterialRequestObject) (GetStandardMaterialResponseObject, error)
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx context.Context, request CreateTokenRequestObject) (CreateTokenResponseObject, error)
@@ -7757,6 +8427,100 @@ func (sh *strictHandler) GetSampleResults(ctx echo.Context, sampleID Identifier)
 	return nil
 }
 
+// ListStandardMaterials operation middleware
+func (sh *strictHandler) ListStandardMaterials(ctx echo.Context) error {
+	var request ListStandardMaterialsRequestObject
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListStandardMaterials(ctx.Request().Context(), request.(ListStandardMaterialsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListStandardMaterials")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListStandardMaterialsResponseObject); ok {
+		return validResponse.VisitListStandardMaterialsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateStandardMaterial operation middleware
+func (sh *strictHandler) CreateStandardMaterial(ctx echo.Context) error {
+	var request CreateStandardMaterialRequestObject
+
+	var body CreateStandardMaterialJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateStandardMaterial(ctx.Request().Context(), request.(CreateStandardMaterialRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateStandardMaterial")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateStandardMaterialResponseObject); ok {
+		return validResponse.VisitCreateStandardMaterialResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetStandardMaterial operation middleware
+func (sh *strictHandler) GetStandardMaterial(ctx echo.Context, code Identifier) error {
+	var request GetStandardMaterialRequestObject
+
+	request.Code = code
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetStandardMaterial(ctx.Request().Context(), request.(GetStandardMaterialRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetStandardMaterial")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetStandardMaterialResponseObject); ok {
+		return validResponse.VisitGetStandardMaterialResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // CreateToken operation middleware
 func (sh *strictHandler) CreateToken(ctx echo.Context) error {
 	var request CreateTokenRequestObject
@@ -7883,370 +8647,391 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L1fcxtJli/2VdKcOyGgpwiBENXdAmMirpqSdrgjtTSkunuvBz2oRFUCyGUhE6rMIojpluM69uXuq18c",
-	"4dd77ffdCMeEw2/t97ufwfNJHHlOZlZWoQAWKFLds9ZETIsAqvJ/nr+/c84PB4lcLKVgQquD4Q8Hc0ZT",
-	"lsOf50zn66dTzXLzKWUqyflScykOhgcXLJEiVURLsqJckwmbypyR3LzCxax3EB3k7F3Bc5YeDHVesOhA",
-	"JXO2oKapBRd8USwOhv3oQK+X7GB4wIVmM5YfvH//PjpY0pwumLbDOC3yK3b2bHMMb+eMJObHB4rw1HTJ",
-	"zddLqucH0YGgC2g43TmU/5Cz6cHw4FcPy1V4iL+qh998c/bswIznLGWLpdRMJOvfs/XmQJ6SJONM6MNk",
-	"LhUT5JKtSYcS8z7hilAykzIlyVzyhHWJnlNNFvSSmV/MgnGWjoQZIlOaKDplJ0QxRvScEblkOTW9PFAk",
-	"6LM3Em62uF/lfIOxHprBVtadXr9kYqbnB8OjwZeR2Qf/2ay61iw3bf7pj08P/0d6+Of+4ZPeeHj4/Q9H",
-	"0dHgy/f/4cBvl9I5FzNcHKF0XiyY0M07xP3vhKdMaD7lLI8IVWQplWYpWXE9J1wrkhdCbdvFspPb7uaZ",
-	"7xyGfV6IbWcqL8T9nqj35n21lEIxOOFf0fQct998SqTQdjXpcpnxBA7Aw2UuJxlb/OYflRnoDy17fINv",
-	"YafVqb6i2VTmC5YStRaaXkdklUsxI2aLicwJJVc0KxiRhVY8xfOIzQ7Jwr07En9/8frriFCCR4Ks5ixn",
-	"hBJRLCYsJxOWSTFTEaGCFOJSyJUgU86y1LxiTxyR+UjkVMwYueIyo5rBr+8Klq+JpwV4b1LJFBFSE7M0",
-	"a3MP3kcHp1JMM5581NWDg8KULPLE0B+lqWZkKvMJN1QRfsQL3aFIpEjOrjhbsZTQLGc0XUeEjgT+ZK6A",
-	"LDShZMp1BGQBX4a7AQtPF8zcH3e3gcYozbOMcDEy05/NddeuxwsYRsrEx14QLS+ZIBlNLhVhV2b7VCKX",
-	"jGQcbjoXJL4+dFfnEH5Tce8AqIg5CTR7nucy/5jDdh0TZnruETONiUzXRNG1IlJkazIC7lQ+NDogVKSV",
-	"TTbE4n108LXUL2Qh0o+97oYypf44lpeEXXOlYWRv6DqTNH0r5Uuaz9jHHiCsKLtOGLO3Q7H8iuUPFEmk",
-	"mPJZkbOUZHzBcbQXLL/iCftG0CvKMzrJPvqAU6rphCpGEirMSk7MXtNkzlIi5Cryc+AJMyxezQutDflL",
-	"5UpEQNA6U6Chq5xrYPpcASukIrGzV6bF1J6xCUtooRjwQd83VyNhCCsV6WSNPL8unh16+axpsvbph4Ek",
-	"B/N9K+UrKtaW6aifhUw8UP725IZ2ckXkFcthBexJuKvpfiNooecy539mH/VqvuJKcTGLSnYZeSYoc8MQ",
-	"5CVLyYTR3PA3syq1SX/33XeHTws9N6JLQjXbFFjir+DtGFkFFSQGGhUTqnXOJ4VmpHP+4pR8/sXjfne3",
-	"WF6X7XDplrlMmFLmEj4Xmuv1x1zB71iWHVophYtloVEKmOSMXoL4XGSMyGl4HU/sCqgYyKIi5tqOhJxO",
-	"mUjNFQXxo6TgRcYs2/xGqGK5lLlm6SuWcvoW1uNjixRwJR4ocoq9HppRmMthqJAUNbWA0CRhS616INPa",
-	"PswQnsL3hticmWWDsacpN+/Q7E1uGtDcSJ9TmilWH0n5NtHznKm5zFJ1AisJY8jYVBu5kGhQY8yQmJhx",
-	"wUBNmdIi06Sj5ijsZRmyfingwQXTc5nCUVwG4/jhYEKTy3FCs2ScydVYy4zlZgTjJQp27DrJCsWv2Cun",
-	"PeL5NaeD6oPhQSoLwygio+bgA0f9ftSkbKJsara87HPBxXhJlRpPc5rgMvyws+3WLX+cmczlQqqEpVRp",
-	"nnC9HtNsOb/xND6Fh95HKOGYTd/zPSPrjeV0POX7vrmgIqVa5g369OmcGQlyZbRpMqU8K3L8F4/aFctT",
-	"nugTvAp6znJFqFE60iuuZL4GvU2zhbppLNDP10arg/Fcn+FLR+X60jynRocuBH9XMPu72S07AZbtPevr",
-	"ca7u9yiYo5yxK5Ypq/Tjo4/D9wablhd8MR+rdwXNkVF+wPmXhc44y8eJlJdqnN7bZF0/Sheg4FsWfy99",
-	"5YVQe+73Fcv51HKMTUpQPfY//vrZj0brDl5B4Y/mKemcnX778PT02y5Z0DUxtJXQGTUSpZGYRkLIBTca",
-	"CujsPfLMUuFBPyLUSELkmwvy/M1TcvHd4ZfHn5NXQIXJl/1+/9lIJDTjE8tRwu7ximV0InO4qg+UJd9E",
-	"Ma1AVJMra426hxV/77+Rk39kiTYLWrKmNzLjyXpPzvYctFLP1Axfmso8YZHjW6rkWHuzqM2pfjjD2Yex",
-	"tHh7O5to8XIDk2jxViOLaPFehUHsT88rFLyBXLcaQYVYt3mjQnpvRWHbUNI93qrRxRZvVqlcixf2oXFG",
-	"xkU6l2VyxVJz+5opniKdNCBi28kXiJI3DvN9qPn8Mdyo2tFoOrBb78326xjtJBa7CUH9nFRP4uY9rOxZ",
-	"89ZvHqPwgu3cw++bqLA7HnVHiOIzAQ0Z3QEWuHl3PA/o9x6HPKDX7/ePGs7YU0GzNeq/O6l9lV6jxb69",
-	"XwAEPX2jFd88Uz9Q0JV9v3HFipTr51dOj2w/h5I51FRjowivqCKpFCwirDfrkTgvRC/JGdUsjSMSg3W5",
-	"N+W68pkul7m8Cr/JmRkmS+PeposnMiOQDS5AQ2id7o2GX9DNqWmouZ0aFaWaHWq+YE3PpkxTnjXTjyXN",
-	"NU+KjOYqIlwkWQF6PXUW9hxMS1RJ0Wv0WIXbRs19wglGB/762d637uNLOdtzF9mVc7C24mTBadlgZbUZ",
-	"2JabxnpKCzM8teXwoAFbGQrLFRhE0MwwtFYFuMNOyAzstJYsj0SSc81yTsk0lwuyLCYZV3OWklnBU/Ny",
-	"g/hIkyRnKddAaKKRyNmsyMyP0L8VLi9evwHLAlnmLGEpg6Zwc8lkDa4hmpkrm5Ily5UUI+H9zxmjiln/",
-	"qFvpjdO14MLpepuCAkgRe26v2cJCI4utrvQL8zhZzRlaPxLTOElkkaXE2pXdu7BagsSGF7A0NpsBfcHK",
-	"xHgkY3RLrObr4GhPpMwYFdVrszFnsKk2X6hAHIajYEZkGA/YFE+IKLKsPoM5NUdFgKNwRdE65SbSTPFN",
-	"K2jJR71gt7xXP67MqPmB/cg60MGsjiNKWeK8lN5AAMaBFQe7OpzxwEKwuXhtuEVFxMSdClY7aAxdMY1T",
-	"yZm3POKt06XVLJELBtepkYIqc2+MBLJlHwFA4J4xW7NgVMGdBbUw3MoP3rBm/leO0J04v0xReUuqsodd",
-	"qp1kt1z3JvQFHADLigLatQQNcUjiUtozPA/FvTgaiTgQ9cwvdSnPfOcFNUOnuBTmOy+aQSM5M79csbET",
-	"Xcdogo9I7CU1eIspnhY0GxtpzXxhRTIFrSykkFoKnphf0pxPddwjwbek49fMEEF7YLrEbgKYxpw/WUtD",
-	"WMy5SXS2Jr4R9LCYVVrJ/NIwTXC791yH4HFyu0SoJlzMmNJDeEWwlYfbqEwuS96A15IKOM0Xz7xBHnzW",
-	"JfzD/EpRjnugyKBPFlJpYki80CPhpBLsQ0Wl7/s7pvSM5ilBMQUujiIdxdhIxH/3/C15eHX0UOdMpCru",
-	"9shZ5aqTQmRMqZB0ZFyB8YJQNRJ+USN7F83L3r4NV2VqZAoj3Ahy1Ce1cY4EOFkj1w82UG5VB4g6fpsz",
-	"9C6QGsHsWguKMCJwo25S1Uoa9JFQo7AH1agFgQqx5ZSG6gQ8FZzRUmuAkbhTZG6qOS7BRbUkKjq4PjSz",
-	"OLyiOThfzHTg6r7i4qWbEn7h5gWfXtLk8vX0BUwNvvjd5vzg+69ocnlamSN8fX7h54mf7WQv7Fyf26nC",
-	"j2fBfO3TOOlznDN897qcOI43mD188QyXAOEn5gij/ayJPjnbXBI+aERXJFj+Shjl4QZ16agf/O8Gc+Wp",
-	"EdlAempgFyt5qHhqjrF/CvU1c3vhRFzRTEWk33tsyEm/9+TJkxtVuSdPnlSUucfNo9K5zF4a5qD2tN5d",
-	"zNlqTnOQRk0j6ChWpHN28Zp88eUX/cNB1zE5D6mZUMUyLlivgac1qVrjOZ/NW5o+7BuZXLV8AfaftXx4",
-	"RXPBxWyfAblX2o6oxsXt8Krt1AZSmXVUWbRGzo1bdV5kjby7JO5GHOr4j0wTmvUicppx0SOnc7bokcEX",
-	"pHP05MujLjl+8qg7JPHR4UDFI5BDEas2YWspUvLTvwwMH+rYcXdPzKOPVAzOS//MI3Lx7ITEA9MI0Stp",
-	"WJ9QLCkM5XCPeUYGLcJ5OyHx+eExvkOCVyLT/EjQibxi5DfwvPMygyAKYLgV+et/+V8G2PPx4ZGKyVQW",
-	"OdnseSR810dh10f965hoJiqvWN8qPA1gPcuCDVeuMhezZAfRgVmOg+hggJ/MdA6iAzMe81v/uiVpN5t6",
-	"hC2Yvx65vwb+u/Nj99fxkX/OtG9ORpGrJsPC6yV9VzByydaKacNmlcxJx1zjz4+LvLzaS0M5xAzsfwG0",
-	"9fHRoBW0dXz4/W/+Q5OUDYDjfT3mBK0sKBX0yHdOXcoZNYNUVZ3PPkzNIc+M9JdINp3yhBtlwwiAVSat",
-	"YlQCE3lFc25k2xg8nmyx1OsIJT+80QqNMIKZ1k038JwhexGJrV4EqmU8NepkZNsFhysolyNhlEs4MnXi",
-	"iGRiTHWjVmOnWwjQB93TVZaxy+JDSwvfxm9JYMjYqZ2558w7MKf9fAdNfoNwZzYnfibIQqYsO2TvCrRf",
-	"yzxl+ZAYjkNz8sdJPyKTo+8j+8VY5nzGBfkjfPeuoKmRBhL3XEQmg+8r/ut2bgprzXjUNPztQsBpA+s3",
-	"mzhBST01n51i6kWCVtZ20687qk39ut/IguqcX7uOw7WOiPrpXzv/8P/+n//5u3/o/vV//r9/+r8iksuV",
-	"MmJT8Byud2XJ7mztdi8smll3XwcL76XK33iREqXlXjcjnW724ERWkrJZzpgyKzjNGUvlIiLC8BiyDEwI",
-	"gQsKgTrjK5arRnEVoioCfzA+j2TFq4ZmbgBVRrMzPP/wqNfv9ZtNyNY5jP3tuobP/YPvo4NpRmeqyaSW",
-	"aEXoBABIOBALDkcTkJDOAtQaCfKC6xcZnTXd/zmjV5wpjSrZTQ2BknMxpzkYiHjaLiIgCgMcGo133qdY",
-	"XYpnXGkuEo33VzmVYop6xK44G2ueuXFlrJxubgNoz832VPhpnLMrvv1QWe3bPdR8Pwxvrwz9qBGoYkju",
-	"TSN/BQ+9jw5E0/WxXLlcMNKBQ2pUIimYU9ALAfr5jYu5lLyRPyDewKM4rDQQuenKnLheIzLLZbFkKZms",
-	"LTnmAvmo4iVnaQ9uMkv7xgyr6VRXnNB1zCWfzUGUCams4QSa5UaRhcF0CtRlrQu3wt26t7QAgzHqpnmd",
-	"w0PvA1OFSnfQR7/0Kbvi1sPcWT+87kZOaP7v/3VFfksEWcG8iUpoxm47AfBR3DgDfMo+b+7CWAKJp1n2",
-	"enow/GMbkvF9XQJ9kzMFOyUIFcQTXH/fouDCcfQc5sweQzQ4o+9/3J5o1YTUhihBt/j4wBY2D37EjbP9",
-	"ocxbaaqLdrfkAh8N3L/VaXxz+s0rkshSrSpNNhWTjjfgbBBIJ++MW1Gub+3TnoJZdnbje/ax99EBHuZx",
-	"QkXKjXCxlTT5Jx4oohKZM2t4jWmhJaodiCwnU35tCDQ0DP7WjF8y0gEdxJw6tIeaJQrEgS0vd1uTMaRG",
-	"p26UTbTMzVWKKyaabXC/kyvbOUJF4ZKnVnwR5qRlXBm5RhJVLMw/woW0xgGdaRZu/Kza3+Hv/CubF/mt",
-	"i7NjpDBj6oABQTBio0vBJm23B28xQMaBTYWjGYMJHCn8nY7K9p3MpVRMAfnXc6ZKXTciNFOydBlazo9n",
-	"gAowhpwQOgF6Zb1R5UG0mvKE4XlMa7Py073zeQVDpeoSGRt0/meWy/GcijSzm7x5uMwjVWKgMMTDhnmS",
-	"FcsZuWRLbZ3luUyLxFwjLqZccM3c+TxBrd6ti2CE5lKxm6EMGJeKBNxLa5uyWVQNpnVqt6V9TrYKT3Xz",
-	"6jfRGCeyN93J+jLWNOtNblLRIavsHnSiqnvDdOCdJoHS60UzbxHwkq8TOEr66rlGVDF3VJS9wBqxoUw1",
-	"2j8hfF28kNYdvA/0Z4u/fiHRnwaHFPSg9srkhCreCAhZW2c6CggqQMZyQVYyT1Uj8buVacYZ2G7mzMVi",
-	"QfM1qpBLnjO1Xd/mRguiV0iREmbE6PJGP1DE+ikInbGaj0AKtnUBt8h8gWpGlR6H8Ln2dOnb8K1m0pRR",
-	"cOpXEJJUG9Li2BPVcdWv3+Tp2LDzww640xAhDCpY4aZpBXu99Zy/5GpffNutD9Aetr3aUaoLEIJd63Gy",
-	"xRqNVmon+ZlHybI8QlaHMKsFX/duPjJNW2H2IBxFm7VG3W4/M/VrwTaU0TIBQ8rpTEileaJOCA0+AjDM",
-	"HzGuaxHGpCMkmoNkblh5LqUGsWBCk8vDwCVtH0BvaB8ecW5pVBF2hYUVkBmg0YoZiOBmUtAv8lmv89xS",
-	"o0vqvt1Wpk9A2HIM9m1+6caOnVmgGV2Eetstm/aGrEYzU05ntx2zhxjAXjYDwI/6/Z/+0qltKtgrK0vd",
-	"fVj5eGt9HGWGW88HpbeW+x7grcdhz80JB7I1cS8oDN6HF245U5S3thlz6qYOUH9OSB/vsztqdwEDw7NV",
-	"vzfBUvqh+kMcbNOWNQwO5sbtijYIROM5DC7UVoJ64S0GdVsSIE8hxUePPC2BUOBHW2JY8RhtP/GJxyED",
-	"gNNQul7gfq0+bTivhRPBsBGF3RZXU475DbZ67hoNfnpath98e+678pO37HFfcHrFKXgHnr6KV6Vde1PK",
-	"M5aOS4ffJk69ND1haCm6Czj6Y5dUqRBdJ3OPHqvaKTZ6rgsSd2bv38/WfpfG8huik26mmftaEG9vpNu0",
-	"st3STGa1+pYmhI+ndof6bYOKWj33O1TWJor3jGdFs63M/UKmEBcBmZa4UTQhjJQLq+ySjocz/taSQ8Tg",
-	"/D//K0ltE90TcoQ8Bo09vVvHibaAuz0PfYx7yMQ3Gc57DVAIGxDzQSEuu11GTjhHDIl1mVkepipUaQ9y",
-	"vV3yyxkmtmBNcYtbeHz5TtMB2/A4UTFjY4zLgdismxTr8tGGnyp+k1ZJ/MIZhO8HBiLbY22sQXxQ81Xy",
-	"B6+dRrZlS9rHqFX2alO/cyfHcjzoICJHhxOqMBHHhk/xxCbranqzfn0rl3K3n7bx2OxcwCAL3h5LWF6k",
-	"VtaA2nZV/EiP7Zy2RwfVj3E7S89bdq0bLDxodWOIwreB/TkXl4RqMpF6TphI1YmD+KelRT2TK6YQUT/n",
-	"s7n52yIAaM7sq16qr9yluxmvc58DCK3sqLbj9YvVtPcOedEADTX8x8I8aB3koUKUB4lTsCkIC9IYIxON",
-	"hwgNxXMMOWzIQkL0DRVkTrNpGb6oaeYcwDawoIr7iLsnJJ6y1dhfPjWeynysBvGQxEcP1Z8G6I0Blw06",
-	"vUYCe4Zhz6mygQR+8WAYFRMlBKqUPcRV6GbjJI0c0DSslkqEXf5ntmmAr3znGrY/vmCrc9/8C5lfDEBt",
-	"+B2jmZ7veVdLgc/NSl7iAUnXLYeM/b7+/YEbwjm+XD99tqumQxfQ0ya4vg1spSKIXomc0zey2xU5zFxO",
-	"FF0sETMQwFA/P26FQv2+nmu1H33+6H0jLrXMtPomZ+bg35piBhpYe7ZzgzcCs/VYvdj6DowKbC7ECRFy",
-	"Veck7aSkKn5xp5ZQPmk0C9iT9lyhXNILeLOeEugGxlAPK/bivRtH4zG0mMo9BdYAtulQmSWyIjSaIQo5",
-	"nshCpGFEaUTiTK4sptjwj9ijhBvsr/h2sx1ye2RCeytkmxQi26IZ9jROQcCCDWJwUqybX9MGvaSa4XFo",
-	"l0XtNohpPCDAO1y0JsZNmxsB0XH8yrH+fS/Pre55GmiGu97yGmQrw0ddhA3SH+/GSrkHG/Xu8p6VLTZu",
-	"ZAnL3O+uvZ2H8oNTyDKazyDW1rTYJERsXqPbOBKUG3B1TP/9v64qIjqmO0CZAgI87QM0yxzO0P1+m1Qp",
-	"dVMujqpxlW8T0/WMaZagX1Ok5F1B4ZhYVyd66iPEfNeRVgoyyi41iZOca57QbAwWiJh0qEdedHcFPde2",
-	"yLWS7A7oO7t4TY6Ovjx+dDgg7h2XK9t5CXU92O96nNzWBVWZ3G2G49YiIutbj2JbQo7fyZXpY40AF7e4",
-	"4OhbzddmxXtb8nswG0XWnJcgnJVVMgm+ZIaJ8zOrettsA5lscCWenf6O/GFA/ODw/EXkUe/RT3/5t396",
-	"eHHrzt5t7azpxEfkqP9BHSo+W9Bmcc2fjH/7J7hX7nDglarCsmJoZwwoASM+tIz9CN5qr3JemJe+gnea",
-	"oRD/9k8WDyeYIXKIQuvWcWRBkAJEsGzDJXZWc57MsUV7RxAwfPGs22uQHAy3Mdu4cR+jbXRj85DvzHDw",
-	"ypv89xIxXLKDGzPK1PPmleLBHmlpLLt9f1OcURsv+c3xMxAyb02fRj6yr+yhPNg+JuvW6YvsK9Xet5Cw",
-	"oLkNI24Nw2eGP+NXrLmpBb0ewzEd0xkbz2XRBKb+2rMxe6JTaSEYS57fFt+wZySFTcCxacu2bk0c2ZiL",
-	"8dTh3TaVhvauq9u4Z0K0oly2ghb5t1/b57ckNwmcOeHW3ISZdKOo4RL97YvCa7x9LZuPSR2bWJ747UTm",
-	"FigttHm0pxSWmt2UvMo1u32stzRw3IIuoor3gWSxYjK4wZRcJZntuGRo5Ph+U5TGWM1+78njXgOJutni",
-	"25IUGaEvk2JmfYKhQ8FVO1GarksQ6QkREkWbO3AHfvnFl8c35kC+FV1rr8DuIHjNqasowAyMAmlT9ECu",
-	"vBWFwkeIF1nQNZmwMEzHmdF8Jkw47N3m9FU/E7G016aZYjYRRn+9Gi+927dalQOML4vJmvyWTPrkN2Ry",
-	"9NNfrk9IXAk8s7/bn3x0dTwS1ffMv4Of/nL9079i6pAvjz///HBQS8ODLQNcPOjiIDrw7bY0WMOcXrrW",
-	"gk+vXYvw3R/KZt9HB68hxX8TIPW7uSS59RyU9ukTMFf7M+qqjK0xFAOSu8X/Ma7ZqNtWAasaqf8jWKmP",
-	"Bl80m6k/1Dj9t2nx3WXnDVekRBTezl5/NwD8XZmB0IxcTQxg1KS2gf/APNpDgPD5WwGB8NX9UT+Y9PI2",
-	"J+Uc3mzSf7aAkprA3uOa6dIigCoLUZ9cTXZ0M7gBJ74x8L1v4i47WBV4jaKAIUppFUC0kUASeBsmkCyh",
-	"4lbfcoYq881KuvDsSrY60onpYsJnhSzU2Lwf3zbeOLR0tzjZW9IRxJDWZwxjiyMSQ/6f8iO71jldYlk7",
-	"yCcIT2cScwe6T+/MT4LNALcKf0uYm5Esypar0x6Jjs1AFEadNS6ZUT0rpsAhqKUjEWSl60YkLoR1h4yd",
-	"ZynujcQFJKxwngp79krmktA8X8OIYWvBrzQSsZB67IxbZhti8KyTGKktHsi4e1Oq1maI5cZjPHCl7ZTi",
-	"3HPBO+MSbdlo2yy9bEaLlxNNufDBo/GUsyxjeXNo6IJRMd4TRu5s9U0WAKipKKfEu/uDCEOKEOn05vQJ",
-	"tQyAmy7w5TKX13xh2leVEO5GP6OrMOGuUxBdZa44Uxqaugt4OU8bsOXNCQ2vADju4hH9otb3JKACmydi",
-	"N021YsN+NPVvybu226fmKllt4uVfnJInx4+/ILZCFkGrp9r0uGxzKmBuc7DqQklSmwqU+2DnCHjGkkmL",
-	"u9hMOLMlI8ELCRBWmnFbUCyyVa0ayoPZLMstRQSY6gvzciPZEmU00NaqX2RJMftJA+ARHrBi1a6yYfE/",
-	"HFqx+/DM8BstybtCapuCGmk9Zkt/3O9vTTLcFAZh+vnd27dvCD4ACREqiMDHleyPx/3GRCma66ZEgBdz",
-	"mWuiMAjBURl3fkwrjUPVtkJbHcHzzfmZ04XWzmcbNuZod5GLIfCsS8aWLB/aZ4b2hMSWlAbq0W7xDn51",
-	"cwyQ2jvM/pWDM/yh5QV56/JHc1cMr7cVYtwEcjLv1478kFDy9xevvyZv8CXD9SSmA5PpOiLxQ6MHq4ej",
-	"ot9/lAj4h9lPicyKhf0qHglzN08vvgUpLsYnuP11aF+nC2YfJ1gn09f5RYFg9zq7ee1c2XOXTWYPZ/R3",
-	"odQUlSGEFm9pF8RBLtHKCCVBxSFkACjLNVEyyai4DBMMBUGTmkGu4W5NNs5tpT8M4a0ehQ+B2tw5fKZx",
-	"vYHFMrUvKH0h06a6loZjH0L11BgPEnwhRbaOyWrOM5Rng1qpxJdKhZLIOUskoJo70IgiVKgVy8nj/iOb",
-	"4SSoKBrXbD9l51Z2gI73sPeYxfjOvu8+v4YmSgC32kbLaeoEPEU6c6ndvFSXZHR2aMuzaFs/1sjhM0m0",
-	"dDAJqNNAb5EyyqI8y42sWEQ+P96VZCdcubYL5TvajeBEM+KWMwf1Hi50c23UZS7RY0Oz8NCgBloxvp6Y",
-	"82XaQk1FArhOYwVel/DbyASIOi7d9RiD44LxSzzXCYnNIZuzLI1Hoqb7ghyDAXiRbSEihZhyjeAGmRNV",
-	"LFmuWGqhFHQkWnXbc9NwEHVfMIIn8+oRD9YGQybt5A+iAzfy1tsIPb6pNGi/PA/btd9955uHHayduf2I",
-	"BxfjQu0wu+MVgeth9lPIVbPxPKOzsWKJFOkWd8eU5jaL+4TNuU3ru8y5kVciQn2AIWQCgJCsKjLB1v3d",
-	"kkJ7Z9VBj93fBONzTWZMoyUFZtopBNSpNiseGWpRpvwHzT7C4vmOokS2on93i9QJe7PZ9RtpvT1ckMND",
-	"R4MPgVAWeWYZ51FFOrR46LbRIq7vyG1x8/UvNevNQJig9ICLbOlYH4uztFjNFVl1IvMc8RrdfbKwV+Ng",
-	"Djd/29jR81A/q8cal4q9S6b0QWkA/RLtZ92GQRbZ7SpW7bBW7xMgBxXRmyQDX+QKMiWj4b1H00pBKwjG",
-	"9p9D4hmDNIHf+2i/ZvNNC9DmzfC9Pe3hl1ykIUO1Hn2rTrBxMjeyaXva7Hfx1DcUfAmc89Q1aVQGs3Sy",
-	"UGCI3sMxXeHEW9Jsmd8sz7KC7xS2whYsa0hbc0MUIHI6P9L243MWdLsvflu50J8fN6bN3TOuGQ7leIux",
-	"UrF3u2kqaAyMpSeEC7M6kEDMyKwYpwclvyokavu42/klzIhsFiA4f+7y1Rd543yEQZN+RcP5B7HRO50f",
-	"lZu2hdYXmX7BWPoREgztWa4tpJVNKYSpGi9kvgUOtTP70BuqlJEuYsUh67tNtlfJQwRwSBe8sXuf7bzq",
-	"yYb8AG/wJ537/KZ7QugtwiFlic1FuvRB1wmrS8ZQxC/dEXa9HcgXVAAETN8d1CFMeJu81bgyz9zTO8S2",
-	"ryupuqrAwP0yR/mxBZfwhlDl2jADNmO1HJ+GpDV/MQ0+9S/j53PbxPvyi9sgAe5i8T803jWIvtXSFX/y",
-	"KCcMerNO2rKsQm/7XjXuSpGxb7nMyvRxe1A3S1S3GBMsVJSLK5ldGWXScBfemHC3DV/biIbGjd5S9dAR",
-	"q6PDgSK2FktEzNH2P4UlvZo1s9wWjrkBCOJrzFRq7+2+QNC0n0RQiK5c1ObtEntXB8kLYch4mfr/DvLo",
-	"3Ar50aZqgSvisW+hglvArZdSaZaSLWmT98zzd14IrN3ScFLdDLbAXbRhRuadygK40YkwhdM/IqVN1FXr",
-	"KjniBfT+9xevv4YaOPbz6cW3QCNvmzaovUew9HDv+84eiYbkVsjaB/C8/XFd50UA6GowWGJ18dbNuRzm",
-	"N2KZ98v/U8nV41fOn9PtsO5wDuXiRGUeyd0SXCGcHvgx03RuGmeQfy5Z7uLq21s0dtzytjepEVbQegFb",
-	"1Ye6g4j7e86jtS9wbncA7kaCqi2rd1tA/y0Y5MekliHx2/WWx/V+CGXzoQp1i95Ocrd5CY3GvQ4vIfg4",
-	"fNn+vehjw5ge7weh9bRzB6UsJ7T1eHls5z1Tt31RpCHurVGW3sPCtCHIWhNLS1xoySLvzrKbbk0od7SN",
-	"9bcAw22xoFUQTvuUDLmZgzelFAhmt3M5b5Ul4lOOBlzFyv3YV7+y2FSHN2WpL05dquqYunp112rYTnD+",
-	"DaWBG3GTVWfxjF5hSTOI20YILaAabw17vk2O1apq16yoWer1QVWMvM1iE2ZKEupr4++kN283MegflMSy",
-	"JanaAg9/C35ihxkl8JRRhOM3ry+wdDkKng9/4On7h+WTCotzApDaAas75bFoKCfaBcfWBux6JOA1W8cv",
-	"Z9Mg5h1djCe2UH2JfPWwgfUtAdpNJmBzsR8owlPwl2M2XkCnTxlLIeuWIrytX+OOAN93jtjerSJXwRn3",
-	"4tW6C754x+6uDbj5bTJahM7PG8xXuCjW3yhzgjAfs+IOngGttDds3UFZsAgxOCSu/LRZ6tdm5fLhF5CZ",
-	"i4uW5X/29rtVpetQ4mmHmN8Hi1+/fiE6v+pkrF2Tht3fL+w9FC3+FlWDXferMQ5xL20Ae1e3U8z31WHr",
-	"KdXuLejyIpEIDvfIxEKoYYnphKUZmlPubT/DMit/uuCipXkXOjovhHJ4T/wCOzjH9uErML8on6QfvnuK",
-	"HZnxlvlvGvnnv/2TIzOYOKhzPuja/Fjk5etn5LdlliIgIS9f/4H8tswjNBIxoJzGKo2H0MzFs9Jr6tK5",
-	"al+dBeDMHYjv0nOp2Ej48qgeFT0FBHOM4GiblRSaVw//+l/+N8xB5qFXVGOdcgul3oBMR25QEL3mqwzy",
-	"hRHclEVHd9i7gmYjh0wPkvY4lN3KVi/tnlQr9w3rL0RYYB9XgYa5jw1ptCM4ccXuQISyUfjdISnXMgB3",
-	"5oWAsMZ6FlfDgiDvLMLMSmAXy8y6bqxfFadp+j+IDlyHkIao8nytNlrLQ+tP21Nsv/ziK9PTRVr57iV0",
-	"iVn0qr+4QqsXCB/y1vI7DHC+Rea8XYnO78NyUPLVmwqgbCFWFSPaRzAgbCzqDe7V4OFweT+qNeFDFxmc",
-	"/Juu6pwxotm1DkLKIF1Jgk5lIy3mNNEs9/kGNZ1gPX/UXAy1TWieczozFEYXuajlWRg4vrYl0cKfRqPr",
-	"fv/Q/PdL85+vzH9OzX+emy+PXoxG11+8+P43jfkW3spLdlunzi0sAe21gq3ZopThfHtIR8DJG8Qi8CM3",
-	"c0vFkpzpHrmYy5UgwDvMWTkhXJOECqs3Q6gFGIpaytfYY+TSm9iJ3FhsA7bodvKVW8R2VpXwzjWgWSSm",
-	"ZaSarHgGWR1Kf/wJUbBWVjVHs4nFItIi5ZronPKs9yEbWEp6x7vEPNBO3hXM/txUwLC6AY1rnjNxl2xo",
-	"QhUzd/7GREqm36/cw7eEadxQHqhd6X6Liikr+AvZWAgaom21JJeMLc2OL7hIg/ojXBFt5kQ6lARBI8Qt",
-	"SORARq6cJkUb2p61k3wAYKsFfuOfrlRSaXUcsYFtlfF1XoikudLg27xgpXl2xUUqV2TOsjQoK3AU9ft9",
-	"tyKYgTLDogkyS43giw9AtlSzxs2gpyuHBtvHORiCyG50dTQXIyo3ISiL4k9+UDk3GGC4ZO6M3aBxVu/I",
-	"BwDePgi8tjCLfTtrlGgqkxMdqIZDg8puGRmasiuOZqGOgLqHR9uiQP0Nu20SWJZhOMv2zBauB3+FIYkv",
-	"1Bm/mSPC+sGksfxyuTNh31v3/0144a1qZTrLJARRb/ML+CNKqKVLU5llcqVCjJZrBExORmbbKCAd1tbK",
-	"ZFu1qTrwC9tL9duzoM/qL4GutPHThR9N9YeXEhWrgGh9BOTEvkErzFD8ZqLpIvG0DVm3h8y/gbUpuXIO",
-	"rqmHjroYyZCaLjgm0YOH1ZZMeFyMQ269+cDt4DLN6bfBv+N264Gdxq6cR4IZTmojOKFqrpDEH9TbOvX2",
-	"z4JV5THN+QWUQzj7Zx2UONiz1lCRGkx3J4MKjdYVG7XLuuyDg0vgUXkKq2egMtcmegTHOLwcRQE9hzpa",
-	"//AJPZw+PXzx/Q9fvj8MPx7v8/Fo0Jw175tGF8NTAk4GsEglMvWJKxazhy/jiMSF/fePy+Xi+3p2v0eD",
-	"XTrn/3D4P33/w1H0aMt4vrWV931Cxn2yKEB4PRZFQrOeq+NPpoVAP2gtNT25eDYkl0bwjJdyxfI4GgnV",
-	"ue6S35Kk/9NfFvS6cx2R6/GCi+6fkiOMhoKPGP28oFlWMSuiS3QkKiaCE9uFzeio0ph0GtODd8PuyW9I",
-	"cvTTX67RLleTRvpt010ftXzQxf/t5r0uSqt/AE03HepvS4pQC6CEGAWbiFWsSVn5FOKWHWmyCP2t7uZK",
-	"WVuqXEXKlpzUju4Nvmg/vYD3cezVevp78Lt92NxtqnvfL3qiDbcts8I0oLCmU5YzkbDm8tu/fgZOgf5P",
-	"f+lMZSGw8ra1+Xcf2j9uyYKgwdb12dumBSxpxC2HtX/o7Q0M1J/M35vndxdUN/pS804YFvvjr5/9SKiR",
-	"XllKJutyHR4oW2WskoK+xek0F3FbsSaXEcWN5wMqon8wvqAM0dmQFm1CC1i6B8o5XUgiF0xZ+E8rW10g",
-	"QVhqebPZ2B3i2mJt3KtwZ/2i+4sZRBLt7aoOz9fHQ+pbd6gPLm9UGBeGWbjsj/bJGthiwiBu2HBTRPI0",
-	"ZLYI9OWrGplve/E2NrzS0OZ0bjBHbNzpTZbJBdecZjHpnJ1+i0CrRArNRcHFLCadU/MtCBCWzoUjCjml",
-	"bQhPoX2/Pcv0TZ75ZioHJmiyNq9b5Py/zUEKp93eQlPd2xs0g2oXe2ztLSMPdhZvc1adsHzbXsUNd8FD",
-	"v7a++Fq2TUycRvqRN8973JFRFD6syHarUtsfzCg/qt+wDdm3HGKL/wZz3p9SkfLUZcXY4wSlV1yxLbBI",
-	"GD5zMINkLqXaFgmLdrmdzbhUcy5f92YjC3pdqR873lJk7m2bMnekXl63ECmzuZwTt1qhoGfx10aPKJWI",
-	"29hfpWbNGZFo2TFCvS/5conaDLJpSIh0QhgU6JF6zvIVV83pJVWxGNOJGjcX4fvx1+fPf3SrYiTaw4Rm",
-	"SQGJnj1hUBtibtPobrkKt6n4ULsbYWGGYLpbz4k/hZE/1nY3tt8bO8Dq+r1kVOlDtMEqe5xUj8RHD6//",
-	"1O89jslf//P/YT6tobAynjbI1OocU5M1oSMBxgIUN+qoS7AgWutC52m2YDylhGlCs15E/r43EqfzXC6o",
-	"lrO8R74iX3xxTDqDfn/QJYOjx91eWdUZx2Y6PHqoOtfdn/4VIVB0JDbtGoHR4vpPyZErwEiTXCrlinRr",
-	"STI568Cnkbh41vXRCubryjS6kU3wYebr6z3KlSAXz05sRjI6EuWxklNHTMDzBAcP08Z424i9sdbT66pP",
-	"j0S8UQykV4cy+UKSNYqF2K7gcGPG3sAyo4oFIK0mSmYF5LfKMAUXpuq1F2kktt4kQhcSHJJSQWkUxNMK",
-	"uVHfeyR2FvjukeewHKhwIv5fQbFMP3wFGSTtcozLr+MIM57722yVtCm/hiB2VQLXqiAuIcEMaQ83/mU/",
-	"D+Dftf9+bT/j9wr+BQxYOyHRX7mvsUv/+UxcXbzL9T/Uvtv4PGh46T/Vvtv4vPFS5QuAmH0f0oPXZa2Z",
-	"vcJ8fKX0EiBoT2pkD7mvlMOzrCnEB/U2Xx+xbUVCEIiCm9Dk/6u7x6ovRJWud1LLSmWdu1uiEyijz7KU",
-	"ZGyqiSw00fQSgi68mn2vC1YDXjEAgnrwaSOREoylCtOEWXKsJZmwbSSvQ8EfmMNMzZ10bxmJA9+cZnQ2",
-	"Y2k3Ggl4GEdRhWaSOJj1kGDbuFbA7M3DDxS5eDYSYJAgrvLWoyGhhjJbjOxKlk0acmvEpZTNcmbGbN5l",
-	"LJUL0jEb8OQx+bWt1qCWVCgzBQThANU0u/VF30bjVIT2QFYfNKZVrB008AwnRc71+gKkRizzzWjO8qcF",
-	"VvSvab/ma5nzPwNHGpKv4FnUQxIAD9lczj0CUB81JHGJto4jQOJ6uDXUvagArqG2RbrgIj4hijGbkR0C",
-	"pbkUDxSJrw/dzTpEyI8FyaLYayRcGFIpxM21Xh68fw/OwKncnFKQ9RujAVUlXWQhgCFldCJzaxoPdHvP",
-	"kiLD3tVI0MrPG6kNIjSsm4vmGX3IeUlZrs5INBlP1hD7RRQD34SV6iMUcqCpiCwziZWRr1iuwhAzBWfL",
-	"5htVEfnDU5d+yzRJRQXNNRIj8dlnyBBxk1zkF9UoXfQ++4yURfKMuFEWWC3nAo4WSDzMUqhCzHJOXcyL",
-	"0R4sfVEkzelK4P1YFpOMqzlLyazgKQV8HmLE/brj4pi5aav9YjDPzEgH5p4L5LuWEV+8fgP3dCSWOUsY",
-	"lMs58TYrQ0zcWoA49a6gGUaLLlmupHAJda1Rq0ee02Q+EjZfsEjDQD4vW+ZsyahWqPVwQWJnkIhhdX/1",
-	"K3IqxZXRaaVQI3GIWdaREGPQm1kfJeglGyfQ61vuvj1/cUoePXr0hHRi1A+GxBsUYkPCiOnxm7enxAi8",
-	"hV4WukdKBRoOMQa7muEBxD9n5Jtvzp4RFCJUz4wIC4vgj1MuuGbk7Pnz54dfPD4mqI6oHg7bYiex5MvX",
-	"9GsIrxLwzvrEDMeCvzC7T5DxnCtNOtR6mLDSauhSKgtHU9NKRQiE8q8eW5ZLqbuQasvoR7ETjylRZtaC",
-	"ZTAja+shSPSUDXt0WXhx9RXpxE2sdYhl9iAnOCHOruCbMouUZNKoktRw2SyLiMJ4BI2Crlm/hOpkDqCF",
-	"NfZm2gKB2Nzp3Iw2VbgQcHBSmSDt8WuGBGvCTkiSccNniZqbJTMNKc2zjPCZkLBjMBmowm1rwppZRgRy",
-	"BhIjRufEBrwqQtPUvoFbDyfQKFCe/KnIES4V2YulIqe6AFnCsBuzEnACy/M2JEeGzX5+TJ5enJ6dkYxp",
-	"zXIVkZTPzDWF2Laeofdj85+h+c9hHOGUKFamANWB2lfN+YJ3SQelDBKXxzvu9sg3gkMIHoCwEV9gWgtA",
-	"2zT3Ua/uQhp+Zhqx2bRhTsBWRgJJYfzw6igmuTSKCooge/DApzbBFWDCGXD9kXAxINjP0AzkR/xAfgSJ",
-	"5Ucyy6nZ5R9H4sfDw0P/f/NgyE7Jj+FekR8hSxWyLMjeAdtttyiy2eTNj+ZORfhwJZd4qWB1zk6/fQiW",
-	"bNtpyLXJj+Tl2asLQKrMXLGpH7F95OaeJwW8KKpVjYqcRw9kdMZs2E+t3iV2X5URyI+GkylNp9PGbpG7",
-	"lazNiLs2W5/HEp0QG8QU2mdylsg8rayJsiNAoYT8SOAPrjQwJTNtEFaBpJruC8eAcBSw/dDGSDyvyDIk",
-	"40ojQ8eDYOuApguO7BbVSigQYa7rSDSIPkNC7QkzOq+5Mp99ZsiMFOyzz6zGuwC7gGlWs7TnZgL1vswQ",
-	"WErYtRHNuUYbQQ5E1MgnECivPEkzTzumnzFtuJPh0K+XTDx9c0acJOmyJAIJg4AqvELlzA3FLoXMIfnj",
-	"9/FIdFw7j3p9dIQqeylwocCEYW7Ha/PSAFbXvHL2zDBVwRJtLZ/KEOunDh4WkQXNDMPExPpI8+EUXMlL",
-	"ZjfIjOi4f3SCLIu7by2nMUKdXSkcEDz9qEfih3NGMz3/s6FdD6HcAf65YDrnibIBvA/lkgm65L01XWTx",
-	"SIDsIaTtpBO7hYOF6DrC9BxsIY4KYckts5GCbBRV6sSwVXhgH9pvf/OPCoKKkVaORGzLyxhK2VD6KEbb",
-	"S2zlkKZKSEPDJGxlmIlMLTMz4pMZ0edP+kc7q8aw3gy4aPzQ37iHg4fVGGjSiUcHo4PYzBSA1XOZ4fvd",
-	"E+z99OJbkrAsM922rkMTkVjENv/khBp2vZyvFU9ohrE7HRA1CZkzmjJYZvj6qOtAVrajLx46US+2wykh",
-	"qGY8NxW4cc29K1i+HoJiaca2pHo+5CkyvxgHMTxL2WIpNRPJ+vD3bA1xh2hLt3LSgisj3wqr5IZLDw2h",
-	"wM2Vs2/nyFdt+uj4oT1qr9z1IGotNL2ObKEtoz1ZHo/cNgD+GT563O+f4OFBwsXVSBgJ6NC2NilcPSIj",
-	"qRWZ9xoYqYcnzCjoPtdUYEBzQs9ImDtn5A9/bfGJCEI0IXMFL9eIXLI1yILHg4Hhu4/7fVRfDN0YiRHi",
-	"fwXN8CqNDpA8z5nhba6iVnxiDfNGQJyZgdgTbCW1TJoj/LUEam86swI14qd87S6uKlKGV6lQeHSyQLU8",
-	"l5GIw+WTgoEY67EgIPgB1b4EbCgovRlPmE1OgdFBB0Z2zTnTNF8HNbZCJRdxksomZOr1e32btMzQqIPh",
-	"waNev/cIEY9zsAc4Kmf+nrEmaCKU01Fk0O8HpVWWuUyYUkC0Mn7FeuRrEJ8c5ev5bIdcirP0YHjwd0z/",
-	"znZV8/YN+n1bhVS7IgQBxftHm0ADD+pNpinsAi0CtXnAMM1qPMb+mprx48J8IoJmQKkrxpSD4R+/ByfK",
-	"wmzD8OAlv2JQ0SQ60JAZ5o/lzBUWu3E8Y+siv8mlOf+sUBiiyK6XLk086oP19T3BR6B4DTBPI94a7qNX",
-	"Mr/EOBSbgU4RnRdK45na2JNXdmQ37okZ18NlRnltN+oInY2Ftz3cx9IHy7bw89i6CSGn3roTb+eMOGHF",
-	"62oBlVhRRSYFN1ItWARbHHvb3H7H3g1yj4UOh27kLDf8iPynp69e3sf6vw012l1Lj+JTSxpjfS6+5Be1",
-	"vzobkGVZhl8WeQ4TfNx/NBKlk7e+KyReyJSB4HFjeTEjEJb1xYjDhw1t4R2w4ZijkDpPBGhrfpAwkk61",
-	"5hgphOZZCSQxLStDQhcSTCHIzAP2OTJiAE8YOCO5ViybQsUnrBUWB9pFpYhYRPiUULGOQAqAvAc8Jxmd",
-	"bbn757gr90iOgxJjm+cVujdMGNbz1ufTvPXo5rcucGm/EfSKcvS37zra5ch3HGuf1Gvryf7sM7CUDz/7",
-	"rG4c39B7Ze7UNxAsMIsIEei3mPLcyEuQzR0xpHEQLhGDEcmK81b0EWSyHomYp+GPPfKCZ2AtSeRiYsRg",
-	"kBeffv3shMSGoMEd4cKiilDF0TK2WUHMdxGZSD03/KYygh75PVsrBsUquLDGkyVVyooLWE1kJJZ0xh4o",
-	"EgeFKWIofOH+Lj3KkAYOh3tSe8FcU8BbSFFW4zJNG+kQHzITkUv6rmAnIG9VDZUpwzALmYMXGeEqC5ra",
-	"BQFS4jqPUCfsN92il1zpU5dQ2OsLCgK4Dac8AG3ARZIPq/GY7e5QiJN6HzU3W0Z23l2bPnvT3TXpY3na",
-	"NVkJzNrWZpCPuFWjQZrj+mV9TvOMm9tWOdlReR8gAqphDObmVAbQBha42f9Lqht69zdvW++Q1+VD+35D",
-	"Z4wo/uetvYBCW+nIx3I+7geuykHFU9lYAK5J5qreb18YGMkGXu0tA/PVbVofKgVizff3yPfg5AIUt4Hv",
-	"vRYMJgSxSEA7gPcdt+F9X9HUwVvhlaObX/lGUGvSZim+1IJbvpD5hKcpAyzh8eDJzW+8lfIVFWs7OvUz",
-	"cXPPv08xzIQbJX4d8HDLr7+PDjYMrliOsE2+sCrzh4ye9yABYC01sEFMue6RM+RS3i0rRcKikl/axJ/m",
-	"VqSIa8JvxtYggHlGIeQcjMBGssWWtoiHmP9+g601bUz5CB59m/P1fu/XNh0IS/79wq9U//jmN76W+gWE",
-	"qfyN3sGnLiWzOaJGcwNwg8VIgA/LpZm479v5EBxGre7o7jvpzH2JkcRTrNBnUTtBxWGrqOaFiFw6EBDg",
-	"rVMl8F6BAW25ZAJ10l038SlM4Rd5HWFoL+VWqwSWo/t0JX8BVzI4euC+SyyRdzfQXqZtN3CPK+drrsJx",
-	"W0r1QRcPY+QUoUYjxlFHJGcWdu2ZYC2a0qONZc5nEGPjACZQXBFYZZmnMeMCvYaEg2k+ds2M5TQ+wTyS",
-	"viHPR12EHHhTNF0DOMgKHj1y7nCB1WH4JJvmDf/JaK+QjscBhiw6ssMs2YG2RgJw8BCdZjTb2KMvY9Kx",
-	"PrDmasJdS4D88linUbxE88DYLv6JNW1Zn76L4S/EA+W8OiMBBamp8/E7jBjXkXe+uNk+UB6aRXNkB5BN",
-	"iaqRKAug98hrl0LJ2vUsOcVzOqdckIQKzOcGIQmkc9x/Eo0EOKBiGweqxvZt6wI7h/QWnePBIELH5wQK",
-	"Z3s5qXSOejZl2jvxSLaRwGTyZ6e/I6+O+qQz6A8G3cjaHQIA28XrNy561RD7LrhUY/Buje3WxUMcA24r",
-	"oKWQE9qQB1cUmiOG1MY7+Pzt0KA9LGqswPhttk2wVTwkVJOMUYXROi58AlFZ9rDRDAyx2M6CXo/dL+Np",
-	"TgHIgc0spNJk8Jj82rv1XPybG8pIkLJZc9Qyc0qrk3BDSGQhNFQ3Bb+XbaprR8EFxp+o8SVb6nAaFehk",
-	"8GBsMUpmDB2HA1f8OnJb1MUUZz7ZK/Y0kXo+BuDtmIlUjQVjqaueP7STMcOt3DWzAGDvsk5km9XWnfA5",
-	"n83NZwtipnkuV9YwCwhfqvFt0+EJmKBMIxZphGOxI4gA2WYYt7ZBtg5isZqvMS3tjAmWU4A9xa7qvzdo",
-	"wSJ3m+QHpJzPHTX+QAkC2NhXMl3fmfDgR+ZZfhVh7wtEV4SXo4+jS4Rh+ei7h/5fymRLLOcbqudhlVos",
-	"gxvXmCOkcKlOMdrl6vl3Jjj1WwhOp1JMM5vC6PioxZje0HUmafpWypc0nzF873GbBVDFEouDvGIpp2/X",
-	"mMTyeDBo87L1hBtZ67nQXK//VkXD53XIHFA5ELGgkAdKXkGhQycyvkvuQlxcZlL3lhhCeB+GFLpgACAE",
-	"ZwN0pq5msZ3Zm6//jvAFnbFdCtibTOo3X//dfapgMIaHdhUaTLoTLiias9o4g2GWn5Sun/1mmYMTaFsR",
-	"wVN070YPd8rv4UpdlGBiLwb6EKgFzS9ZakVkq6HZmdvw3SmHkI2RmFCRosJAy6T9SypYRiYskytQWPBq",
-	"emwVRYwMoJ9GQtAFCJnYvo/ECaJ8TOvWS3TT9b749iNcb3U1+831rdAdny70L/RC47m5/wtdAu7b2VSq",
-	"yP7aHT7bCCmDqhhLoiU56gPE0sZ/BLFsdsKg6iHKhJbaIQKZ8TaXt5y4gkBGHYrL7+NSewPtyul63R7Z",
-	"QGH2yJsg8A1Cc+rRaVSsXQgXePTnwNmnWJKJagt8VwSd0GYxLFE4qWQfGwnQvhQobkiabB0+oujaoUEx",
-	"+AkqlshCK57aQnY2PJClI4EaoMyRkBGK1m4LULBWcQx1mnKNsaHWNI79AOJ1JI77T7ZrdcGi/OL0unJs",
-	"eyl2/XsZgK1ptcUba21YSx9QEyH0y8aW5SnL/92R3U862C/Rax0GTCgsUoTxvQF7CblASx6zg6dYvnMH",
-	"JvpXErI3W/IGkb91w7JhLbEN17IMyWV/jrEKJrrW0IaWssTaT2xVP1RITUussWYFeQpNg428rAcLiY2R",
-	"1AMCFNOiohGOlqa0zvFg4ImyFKzbI08rDAWTtWdSzFi+OTPAiD0ZghwLkcdckSlk2RyJcygWo0IXIQSJ",
-	"C7lC5qmaSDxWELsLL/zdE3cc289E2Lda7HBULP1ErD8R64/gS62Hnd6rO3Uj4+Ida/SIbKhEDHuYQ4MC",
-	"AAhkHW/DxH5bS974CwQtbGTN3KJ0Vxb+k/b989+7b5uj2hvhDDts0y3V8KiNml1JgrP9npGzIKDfNDsS",
-	"W0L0bc62CdXJHIMVpSCdsKPuiY+TH4kFdaAk8LG6DKXmls6N0NSpDcq6xiGipeLfndDksiz8ibJKZ8Eo",
-	"mAZiv0lxRIQcCV863aZlWCwhyx/XNgy1Gv879ME0IwGpySEHs0tGDk38+tnNScvJmcYUjwqU8ZGA7Np/",
-	"/ef/VnMYl8l2euEij7XMWE5thuc4QgFxJJwp4qd/GfTJr12xGfLNBXn+5im5+O7wy+PPySuEl3zZ7/ef",
-	"hbmAqvt4sokNsLgUM/ucp7BGkcOJjUQl9Q187bAEDjf2tAwxhaV1udMx/sGJqUayVbC1T112/8r5AuSF",
-	"tElEfAbyauYG4tDnI0GN7mtL6Rtib+OYKCw/VGcJG4dAZQ/OOYGsjfY5BCRArh1lE/u5XlylfosgQXtv",
-	"2G40EpBRBMT8XGJ2I+ejx5zUtrw8JC8VzOgCQiGcwR5zLIUPC3fcf0KsydhVqkEbj4vTRgk+rEgzEvb6",
-	"jIXUY6+vdCOv65QgFsg3JIjHPnl/WdlIiFApm6hZg+yzc6rGU67jbo8cDwZDSEUZrrnNYxTuZgD6MX1W",
-	"jj6s9Tg4t5DQgCJUZouJ6dtqyu1flhrSlPb5I8MHmhK5t5AkPEhUFtpc9E8qyyeV5f5Fp3OUEWhzZqAy",
-	"MVBLCSqstH6DKhOkMnr4Q/nhvdNxLEm8J+9/YMXBxDepS/5Q8xO6nBVUI8dzHoqREHLVHfrctL6SXsnH",
-	"NNr6gSDDu9hd7uGMI9ERUrdhFihPmYcdt0FfKgaD2ohFRI6DJS3CIj5Uu9zXgTMBZrWiiCMEw5TN0K2c",
-	"x4UoFmJAcWJjLsaQpAkSXQmwuKkimdc5nhoJZMYySxngUXvku1raXGx/Qa+x7TGdsfFcFrnNoRMIMFzZ",
-	"diCzLy4g7kSEFdUw9R4MrEeO+8cui+EaCypCCg3zIBjwVzJvtqw5l++ZeCGxfsd+bK0U4w9ujsjcDvPa",
-	"J5xyk5ssJAb3u9yBJ2BORP/URDGhtwXMUb1/vOC9B/O4rdgV01Nu/Sct/GdnJZu7Yq4qtcfyTlXwm1jI",
-	"3brFnyoSv3l98Zbs8L7H0aZNrFyHKUaVbzCX2BKFeIO9mKsLOXFHIv6759h1S45plAjI4Qar//Ls1YVP",
-	"QgZukeTSDS9VjY71r2V9/ODKOB4JH1WBLpLtOkJJDz/EIR1S1XvSF5oG+sk7/Ul7+KQ9tCH5fyiokUnW",
-	"O2jfnbqpba7NVjpBTeDPMJVCGAeGYqpLMzdZQwTQNv/FK9v1PRIA7GKX58HO/1N2gLt33WVZkPG4elZC",
-	"qIU7gdvO7z5OglDEADupOX8ksXGN/qQe9cgbqTRm8sEQMYjjMg9jymSxHomyTiFa6416Vz/zrmnUHK+D",
-	"XzqD/lH3ZCQYJDzJy6lDOGIUmFhd8ZQSlOEbwRpPIxGEYJZDZ9c00TaarzauB4AA1iAUGToyEm6gwgon",
-	"CPNAyATXUK0HIhdzptB67etayOlIBIZ+LN4QZEMo60qqMM2Wt6WruVzBFLIM4th65Kk1AJQZ2wvB3xW4",
-	"9lwYAReV2s7xYLDDbPrKZc+5DzEGG/+ZBBc7swaahTprQjNnXKnt/InfYchjgcZSoG53aZDdPj68ds4V",
-	"k39YcJdjJHHAqR7+YI7Nv7fork+i2C8QKAiXx1OjqPS+hSIPlobal5lVpS97pu9ACItcqXHp09SEQfbx",
-	"9gylSEmb0qstqZ6Xli34534sbk+JWrKET3kSkLOAxrWwuwWhc+WIyrxZR8dfHH/56PPjL25In/X9z0Lb",
-	"S3n0k/Ht57/+r4Xbjdvfb6t77e9xaUaOATu3dKfMClEKkuij9xkNgmrSESSCwBwxRpEEHz4U8gPbBiTR",
-	"fxd366l03sgs84k/oBBQmSuuMcMklEmJSQdv6bCEuUAWDCMP15NMEpqt6FoRxTTpgM/W5luH9G1YlNHq",
-	"wEpCrRft6o3Fc6rGC5mz2LkoGOSUhOIgdq4rljOXk4EkcmGrOIzECwCfGEGpOiLFmKufhpmHnJgtRcKG",
-	"rlko14LVQzE5A+biQLcK43kIkFC2X7AhUpwXOHQQvAFJ4m1fzunkB4olSHq++gU+xhVkxNVMuK6D7mxF",
-	"IIoJ3vUQQFAg8o9EXgCGxAUdAdiph0JiHJHYft+jaRoPSWylR4RQoMXYQyx6DuUUbfd02ifDX+MupANt",
-	"9Mj5F/xP4SAgS78OM6uUKU/M0M0pd0XK/cOhI1AKrGzRaIs4h4aew+ZussHbpFI8sZyqHIq5Ae7RKcOC",
-	"io0ZPM0d2j/X4p2mmzzq97eXxvvYHBM35wVrRn2EqR7/NpJg/S3KwshazLGFOmgVOFsFi43f3M4YmRet",
-	"vUtBDaeNsGkoQWizKZFOUGGwTENlKR2CAKaAERKsrDZoKBTaKGpZrx74hOiByO34aUmDh4SSQf9oJBaM",
-	"ChVUOKoQd4AcFsKGz4igcBxWlpkU2iEncWRl7RJrEJI54hEN57TVwyPIE+S3lrB3Bc0ioqUkU0O/Ma9P",
-	"F71TPMusjypytcIspjEM7KmGTA5JTlcjkVJNywRdep7LlSB0Rdc9chZWxiGd4+vrrisMaY0TQdaoCVtL",
-	"m+nHJp0Hq88wBDcsCuXq3mFKQ/MRQa5un8r8WSfOjGSWxMequzRfGZ2wDNIB0lwBTx+JzkY+JUVmEsvv",
-	"BHhcPCx6JV39NlsgDku6UyjbWEJxT9wl4WnFxhXUsrSVin5FglI1I3HBjGizUb1GS7Kgl2aEGiL0FZ0y",
-	"TAiO+fLN1XCIm5HA0kggCShbXWEBw79kS2RJPgXU4JgAUARhodaU9gAsdmLG8mXOUeKg5OJ3Tw8Hjz8f",
-	"hgVzMP+iX3wjBC5prjBX20gwkUgf3UA6UO+ZayjLmiAodMHMsbeyk13RBdWa5d0T7GgkTi++rXQEfKws",
-	"HaR8rqicrrCy0mStGRblu6ALRi7ZOnLJzv2kIpRyvZfPleVK8ex99pnLrTYSxF+ozz7D6jS6yEU5r0H/",
-	"qJZUHUYBQqozddkak4jaDrf3nC0zuoZu84LFJ0RIolhiboVZ0dKNXJ2OM0/rcE5DKN8TPhhUYKhO1xMA",
-	"Lsg047O5Htr6CNA1wJnMgM0eWLS5FTZdC5ovGOBpXTb8HGaCwGuZE8hed9x/AknEcN7Vmg3caCplfq0p",
-	"F1zNQaTl4DY6BEy27cycZUucDEkxHTw2lMW/PpcZorIu2dpfLXN0OjEUVknUVdwdCcNWK1X/2PVS5to8",
-	"2SPfwShPUWo5fLtesiHxL5cZ+kbCVrqy9SIRRu50nY3jGSMdMyJ22THU7q0UGOg4homUJnbVZWLSwbLT",
-	"NOue2IwAcV2cii3oO+gWyOaEOUG0c9zvd73hCA4oV+Sbty8OvyQdQx8xG5u5Ood4HRc0vwQ4GBTHTLsI",
-	"hDo++rI/Eh079QVdmz7eFdIniYxHB/EJefnCbNHp+csXWAyMiVR1e+QlFxBVYMYKB3IkfIFJCB39Vexy",
-	"D+D2ALjOULhLvlyy9MTWl4aCYuEPPZwXHnIsLgD9Wv0RN6xHTqGumfLeScziKNZIgWwxSSx+BrURLfTw",
-	"xyA/n1yZj1YEMh9qVSZ9pclLLqDY45op8iPoKNBCDB/g/dhVR3SoFfew42tlQdAtX8LrwJDKl5HVVV5F",
-	"ndoWg6yWjHNvuSCRys8R+es//++kX2vBV3HzLwNwMKj6bA/T9h+gHVyEMYclEbLspWSetZm6cJiNF9wP",
-	"ttJ3hOVEGemTDj6CothRF2tJHpLXQQZHw5RzueqRc19k3dY6XYL2SSDnYIXCQ4rAEmxk7qvdhVDiRH8Y",
-	"XERHIRnV1Uaq29F1FlxgI7UegvXquLKkZak66KbWQ7Bi3R45lyvLaW0ZNMOvvfRjWkKoi1kfAJ/hPQj7",
-	"Be5nLwUaZMUabgGICPhgpRByoRiJe2AeSlnCFzTD/KtQmc7RNSDCAqhUfNR7zA4fxV2MfyKGrhWKilS5",
-	"5I0SipV8Tb82BPVMTD3ElWT8koVFajH1GJbW9SsCSUMg/IsLEGIsp4GqiNUSJobIrjFZrTKTfKCIudOe",
-	"ssLJwtdFWBwzLeySpm4JkdRQV1WzXEP83dZqNuto5fCSvaNiYGQfX52YioCmWceEIXaYPhOC5+Gh4/6T",
-	"z1EWCmrq2UStS1tlsnURSDwezc9DdAueGVhjzDpu1hikRFzHzl//+b9h1hsvZmPNeEtYkWzJHEoYWxSW",
-	"eeVxv29FbvwcJs7pusxWhtEDT0P3tc2wapoa9PuReQM0FrjImEwVxSRbm9EoLNZ+xaz26FuE4m+YnU+K",
-	"Q6Qm6Fk88TlL6RokoYlEhDWoTOh8CWpOPVDQKBbGyQMMANTpzm3NUGv0dKkSoP4rLnmv14vdvqFN8BpW",
-	"YTgScRyPxK+sLIMdB1R3OZdaglRweEQ6lrVustDuSJjjHTmtCRXKKj9wpD/yNCFyFAbS+sBWRoKb51n0",
-	"8ijq9x5H/V7/qD+Iop1P9J982fzEIDrq9c0Tg/7j5iceRQN84vjoCJ7A0+N+j+Dlx/3ou8N+/3iw5YGj",
-	"R4/wgUfRwC7oFuDBebF/mFYg8f+erQ82zXXmZMBJ82IgsAzMJ+00YcBTbTHnfWAxoX1GExytkkNvG9cd",
-	"1GNqOzYfFQFmFVqGjpQQ/q2I/VISv4NSP+UQveRuRicN86nFxGwbkJP+Wy/aa/fC+3vLSFIESN7owClG",
-	"1QY2FwI4PxbgT5FEmjkvuHjJxEzPQ4NymJvv48UXnhc3hRWCacNGE7qopNyXjukYedPS6txq8yOxYcOJ",
-	"0BtlX7KswaertxtmXRQBVqbJVrC50DEYD1xpR66c3mN783AsOQV3k0eloXZdNV4YBboNvGYiZcaogMPQ",
-	"DtED6InCZWvOC/HvMlfzJzTPLzCfpFQaCmkLZ/MPLnPowSh2YanDaMwG58UeZaq2OzAcvXGOZ+oMgEMY",
-	"sRP6bfmIWtUANLt6/wx+V/FP5yxhHAIaqwRtWwHTW8g654W478wyZljbafUn/MwvoTKV9Qfg4b3TK3bX",
-	"wBoLpakUYXH2lertsbiLHjkvq62MRL1enBNDnRVLeS/bZlhHUEzOJq+wZfR57n2CYRWcHnnaiJ5wZXiw",
-	"1Rk3MgpolHYQDrpYKSVTLaHgI4VlhkluuAoryQRoCm9fPw9RRiPxjOWGttTT2zhK84fTKPREFFklYFyN",
-	"RMoSbkhWUHPP5iXkwuwkdOYriozEUS/oZVUZ4tbI7yGJ3aTik5EYhE0kssgwrM87WWuPP6r36BOZcGFB",
-	"MrU3jsM3rAfDLMbCUG4tAbjlw8hNi9byBGHntbYe90JAZDPuxmcmqoTLW0OFPQ2YvCfwPeC4wt6ieioa",
-	"eL3SZcdnL97MNJMzdMqYozOhySXYNcHIFSSwGYnPw8WpxNAPSQyJJhWoT2byX4TPBqH51rlE7VGJ0K/k",
-	"o/Nxat0h9G3PkKFXFWSdh87BQYbWHShLTokPGLW0JN7OLM89JuKXyDPd6LaWYoGfP7HPn599XlQzRiHi",
-	"sxB3irVBXmov8YcDbywxKOkPEIPQHGPaN/eV1rKuObKhSuOe6vYIQB65Iu8wKJJbmiYSVuejlVJmNpuV",
-	"c5aVFqFOyd3lSmDecpmHgV2eW5QwQ2thtnp0WcCsRN9qf3Me1GG3I7EVHER2Y4PMilZJNFcbggVUVLfL",
-	"7QCHyGE1XzAHl/T+fif6Q343YLXgiuXJnGzLkWcdIBhrb3vtKMYCklgXyuJuj7izYDe8hBADokErlk2B",
-	"RWh6yUBI9Byk5PuFuBEmZJPk22RjWP6UZalFD5m+IEO9z91mXWv2aJx4hxXhaQUTFKJ0wFsARgsj5xme",
-	"aLPTOOZnuJ0FGM+pChu1rNxNDTkxLiXObrt92S7gB7GRuzcA2lH9TGnAbuZfXh7Bo8LzSlFEC6P5FMf/",
-	"ydx0/9pvmvrTqGVgeHrnAvz1nC324eY79GLb0cMfvE/u/R1rxtMSlIDkMiI0yaWCAsx431wYsw1zjkCl",
-	"3VCcIQPLLubhu7KM1NYKAa2Xp2VmThwXplFxDAATTJZghS1SOlKxrYL6Jll5efbqojL1DcbmgA/Ol1ON",
-	"mfMjupvAufvUEapr80lN+MVXFKzfUlo7rXemMACkuKWWEFZAUqqAkhU5FalcEEQmdzz8+GjwJZlwrbrl",
-	"XZrxKyYQ0axsNWXFkpxpm5oO3FulQ0tk6xOPsgA8CUDNwf1qREILWx6JOVVzzPoH5rRMzozwtl0Me2uG",
-	"ek/pBaDtn0mOgr5vcHjCNkWlumM3QM0B4SR++fnhPgk590984G4TioclIDSWVLQMksWnvessZRnTrDV9",
-	"OWdX8tIitqClE4ufKtFu/aNuaZC2WVpsYi/IRjISAXTPqXI5tJtaeoVyRhOpeAbDdaTi5vj5DxACvvnG",
-	"qHYN7P94c7VwWT4Fkv8iEgKbrfjwa5Izkar7TN6rbD6LLQl7q8HhgYcGCvWNhJwaAdye/yDvYqwyuWSx",
-	"hY5NqGIhLh8KH4CBDSWWi2fQUuklit0bcWnwL4drnltxkcpV2eGg3z2BaCydy8xBURWHPLc//cuAXDwj",
-	"nRXNBRczjLT46V8ewZdon+tGWEef0JG4mLPVnOaaJPDfztnFa/LFl1/0Dwd2Ot8xpWfgfwcz1dHhQJWN",
-	"R+To8JGKRmJwOFAROT88VhE5PjxChemof0066D3qgn2CmYWk6EYsF1ZVPXsKPWaAJAqzF5/UMuqjySPj",
-	"Xk0Zidh3MCRTminMO3zFZYZmP8zHBMZNl7I/yFA1ElxcyQzMhxAmM4WExQhGXsmNzYFkwbagl9vC4UjE",
-	"uB9gzhRFltk0zNglV+Ui9MhTxPCSI4DvlrMaCXOwT0is80IkGB3uEgCI8ESA8wmyAXQEzQGkrt1aGIYA",
-	"ZxKuFbEMPQrkQ0ByJSzarDQhV2Ik/nBKgJGnRc4UQjMqNSYikrNZkZl3mspNNKumMJotfGQXrPJu0rF8",
-	"jCTLTX342bbGOsI6vfGvNSAwnwPCzdCP0IgeES7Awn+1FUZrDsYdIEBfokOh1rv1L2zvXcs76Pt3ckUW",
-	"VKzrdzKq5eOoEtAIA0x1QKS3jdL93pw8YBDmDhhUUgcMPnLqALxP26zFLOcA8NDKzzjyoQsiLUnjp5QC",
-	"dy8WPcv5VDuJw0beuwsNRXzAh2XFjBozN5tT5bz3VRoapa77LPMO2rbppQI0wH7jGjC3ZAsRSXO6QtdZ",
-	"KeuAlDIMZQcbTItGWGRlEMzBCJ528wXKRJhTx4pCuM4eEeRaA9EDbwUDm3bGbCV6xB1CdH1mePd5gzBi",
-	"xBUY9S7mt7VE/Cce+IkH/v+YB/IFnbGH6mr2m+tFVmWADbETDdUdDGn4xMbuo5x0SXoRpgO0OyJIxe6Y",
-	"K5m+WVLkXK+BKk4YzVn+tNDzg+EfvzfnyHZYvw9nQQx2gXWvgyJlAeSjUyrjqtsLUisWQjWErb3ATDRh",
-	"W+6ioQc+ADcaLqqCJu2abDZ6Jq5YriCjls1vHtTprgaoh+2F6dA3G/3DU1edB4waQU3rav5Itmp6uYQg",
-	"VZMfRR5oEOB+PN9MyrxJlV6se22jm+a6m1GJSypzndTLtfjW3yUNDWPOZUgcbHMYetGC56RM70yWMuMJ",
-	"Z+GyuqSHDa2+OUOrVvi4NWs1sAN+xQRTPhET/LlgOueJmxZXJJWJj4urhMLhtn7//v8LAAD//w==",
+	"7L1fbxtJli/4VWLZ0zBVnaIoWa4qS2jgumS729N22S25quZu080MZQbFGCcj6IxMSewqL+5iXua+3pcF",
+	"7tMCs3+ee4BFY7Fvte8zn2H7kyzOORGRkckklaQlV/XADXRZJDPjf5z/53e+7yV6NtdKqML0jr7vTQVP",
+	"RY5/nooiXzyaFCKHT6kwSS7nhdSqd9Q7E4lWqWGFZldcFuxcTHQuWA6vSHUx6EW9XLwrZS7S3lGRlyLq",
+	"mWQqZhyamkklZ+WsdzSMesViLnpHPakKcSHy3vv376PenOd8Jgo7jJMyvxTPHi+P4fVUsAR+vGeYTKFL",
+	"CV/PeTHtRT3FZ9hwunYof5eLSe+o94u9ahX26Fez9803zx73YDzPUjGb60KoZPE7sVgeyCOWZFKoYjeZ",
+	"aiMUeysWrM8ZvM+kYZxdaJ2yZKplInZYMeUFm/G3An6BBZMiHSkYojAFM3wijpkRghVTwfRc5Bx6uWdY",
+	"0OdgpNxsab+q+QZj3YXB1tadXz8X6qKY9o72D76MYB/8Z1j1ohA5tPnHPzza/R/57p+Guw8H46PdN9/v",
+	"R/sHX77/u57fLlPkUl3Q4ihT5OVMqKJ9h6T/nclUqEJOpMgjxg2ba1OIlF3JYspkYVheKrNqF6tOtt3N",
+	"Z75zHPZpqVadqbxUd3ui3sP7Zq6VEXjCv+LpKW0/fEq0Kuxq8vk8kwkegL15rs8zMfvVPxoY6Pcde3xF",
+	"b1Gn9am+4NlE5zORMrNQBb+O2FWu1QWDLWY6Z5xd8qwUTJeFkSmdR2r2iM3cuyP192cvv44YZ3Qk2NVU",
+	"5IJxpsrZucjZuci0ujAR44qV6q3SV4pNpMhSeMWeOKbzkcq5uhDsUuqMFwJ/fVeKfME8LaB7k2phmNIF",
+	"g6VZwD14H/VOtJpkMvmoq4cHRRhd5gnQH1PwQrCJzs8lUEX8kS50nxORYrm4lOJKpIxnueDpImJ8pOgn",
+	"uAK6LBhnE1lEjPuX4QdaeD4TTFZ3G2mMKWSWMalGMP2LabFj1+MpDiMV6mMvSKHfCsUynrw1TFzC9plE",
+	"zwXLJN50qVh8veuuzi7+ZuJBD6kInASePclznX/MYbuOmYCeBwymca7TBTN8YZhW2YKNerL20KjHuEpr",
+	"mwzE4n3U+1oXT3Wp0o+97kCZUn8cq0sirqUpcGSv+CLTPH2t9XOeX4iPPUBcUXGdCGFvhxH5pcjvGZZo",
+	"NZEXZS5SlsmZpNGeifxSJuIbxS+5zPh59tEHnPKCn3MjWMIVrOQ57DVPpiJlSl9Ffg4yEcDizbQsCiB/",
+	"qb5SERK0/gRp6FUuC2T60iAr5CqxszfQYmrP2LlIeGkE8kHftzQjBYSVq/R8QTy/KZ7tevmsbbL26b1A",
+	"ksP5vtb6BVcLy3TMT0Im7hl/e3KgndIwfSlyXAF7Em5rut8oXhZTncs/iY96NV9IY6S6iCp2GXkmqHNg",
+	"CPqtSNm54LnIaVUak/7uu+92H5XFVKgCRimWBZb4K3w7JlbBFYuRRsWMF0Uuz8tCsP7p0xP2+RcPhjvr",
+	"xfKmbEdLN891IoyBS/hEFbJYfMwV/E5k2a6VUqSalwVJAee54G9RfC4zwfQkvI7HdgVMjGTRMLi2I6Un",
+	"E6FSuKIoflQUvMyEZZvfKFPO5zovRPpCpJK/xvX42CIFXol7hp1Qr7swCrgcQIW0aqgFjCeJmBdmgDKt",
+	"7QOG8Ai/B2LzDJYNx56mEt7h2ascGiikML2jCc+MaI6kepsV01yYqc5Sc4wriWPIxKQAuZAVqMbAkIS6",
+	"kEqgmjLhZVawvpmSsJdlxPq1wgdnopjqFI/iPBjH971znrwdJzxLxpm+Ghc6EzmMYDwnwU5cJ1lp5KV4",
+	"4bRHOr9wOnjRO+qlugRGEYGaQw/sD4dRm7JJsilsedXnTKrxnBsznuQ8oWX4fm3bnVv+ODOZ6pk2iUi5",
+	"KWQii8WYZ/PpjafxET70PiIJBzZ9w/dA1hvryXgiN31zxlXKC5236NMnUwES5BVo02zCZVbm9C8dtUuR",
+	"pzIpjvGDLqYiN4yD0pFeSqPzBepthZiZm8aC/XzNZ4LGc/2MXtqv1pfnOV/0ol6p5LtS2N9ht+wERLbx",
+	"rK/HubnbowBHOROXIjNW6adHH4TvHSxbXujFfGzelTwnRvkB51+XRSZFPk60fmvG6Z1N1vVjihIV/D+J",
+	"u+srL5XZcL8vRS4nlmMsU4L6sf/hl49/AK07eIWEP56nrP/s5Nu9k5Nvd9iMLxjQVsYvuFSgfBRmpJSe",
+	"SdBQUGcfsMeWCh8MI8ZBEmLfnLEnrx6xs+92vzz8nL1AKsy+HA6Hj0cq4Zk8txwl7J6uWMbPdY5X9Z6x",
+	"5JsZURjomOkra426gxV/77/R5/8okgIWtGJNr3Qmk8WGnO0JaqWeqQFfmug8EZHjW6biWBuzqOWpfjjD",
+	"2YSxdHh7NZvo8HILk+jwViuL6PBejUFsTs9rFLyFXHcaQY1Yd3mjRnq3orBdKOkGbzXoYoc361Suwwub",
+	"0DiQcYnOZZkGYxhoya0Uz7B+GhCx1eQLRckbh/k+1Hz+EG5U42i0HdiV92b1dYzWEov1hKB5Tuoncfke",
+	"1vasfeuXj1F4wdbu4Zs2KuyOR9MRYuSFwoZAd8AFHvTW8oDh4EHIAwbD4XC/5Yw9UjxbFOJGal+n12Sx",
+	"7+4XQEGvuNGKD880DxR2Zd9vXbEylcWTS6dHdp9DxRwaqjEowlfcsFQrETExuBiwOC/VIMkFL0QaRyxG",
+	"6/JgIovaZz6f5/oy/CYXMEyRxoNlF08EI9AtLkAgtE73JsMv6uYcGmpvp0FFeSF2CzkTbc+mouAya6cf",
+	"c54XMikznpuISZVkJer13FnYczQtcaPVoNVjFW4bL3puglHPXz/b+8p9fK4vNtxFcekcrJ04WXBallhZ",
+	"Ywa25baxnvAShmdWHB4yYBugsOClVKk1MxxZqwLeYSdkBnZaS5ZHKsllIXLJ2STXMzYvzzNpwEJ6UcoU",
+	"Xm4RH3mS5CKVBRKaCNyeF2UGP2L/Vrg8e/kKLQtsnotEpAKbos1l5wt0DfEMrmzK5iI3Wo2U9z9nghth",
+	"/aNupZdO10wqp+stCwooRWy4vbCFZSHS5ZV+Co+DV4ysHwk0zhJdZimzdmX3Lq6WYjHwApHGsBnYF65M",
+	"TEcyJrfE1XQRHO1zrTPBVf3aLM0ZbartFyoQh/EowIiA8aBN8ZipMsuaM5hyOCoKHYVX+HfhJ9JO8aEV",
+	"suSTXrBe3mseVwFqfmA/sg50NKvTiFKROC+lNxCgceBKGmEnFloIlhevC7eoiZi0U8FqB42RK6Z1Krnw",
+	"lke6dUVlNUv0TOB1aqWgBu4NSCAr9hEDCNwzsDUzwQ3eWVQLw6384A1r53/VCN2J88sUVbekLnvYpVpL",
+	"dqt1b4u+gB8dKwpo1xw1xCMWV9Ie8DwS9+JopOJA1INfmlIefOcFNaBTUiv4zotm2Egu4JdLMXai65hM",
+	"8BGLvaSGbwkj05JnY5DW4AsrkhlsZaaVLrSSCfyS5nJSxAMWfMv6fs2ACNoDs8PsJqBpzPmTCw2EBc5N",
+	"UmQL5hshDwus0pXO3wLTRLf7wHWIHie3S4wXTKoLYYojfEWJKx9uYzI9r3gDXUuu8DSfPfYGefRZV+Ef",
+	"8CsnOe6eYQdDNtOmYEDiVTFSTiqhPkxU+b6/E6a4ABsIiSl4cQzrGyFGKv7Nk9ds73J/r8iFSk28M2DP",
+	"aledlSoTxoSkI5MGjReMm5HyixrZuwgve/s2XpUJyBQg3Ci2P2SNcY4UOlkj1w81UG1VH4k6fZsL8i6w",
+	"BsEEv33s9Z6xVGOQjWJHiuubUVHivFTWxYEWINcAm3Hkypk5DmZ9z7BYXM/huvpzamJLRmUxUvUhV+dL",
+	"534tIxw10lxYQ2v3UeVshUZV16VatKhQD7LXqxf1QsVnxd0KlSB8KrhZla6DI3Fnvxf18JATkaovdUBy",
+	"LLGNete7MLPdS57jGsMUkQi9gKApO036ws0VPz3nyduXk6eycF/8dnnO+P1XPHl7Ups3fn165udOn+0C",
+	"nNkxP7HTxx+fBWtgn6aFOKV1wO9eVotB4w1WBL94bJcFP7h+zDP1GFeG4mvgjpKBsI0AO+NjEj4IsjlR",
+	"ZH/nSyWLdmYT2gSr/91gj4W4H4niYQs/vNK7RqZwT/1TpJACecLDc8kzE7Hh4AHQy+Hg4cOHN+qqDx8+",
+	"rGmrD9pHVeQ6ew7cz2xonjybiqspz1HchkbIE25Y/9nZS/bFl18Mdw92HBf3MUMQK5BJJQYtTLtNlxxP",
+	"5cW0o23HvpHpq44v4P6Ljg9f8VxJdbHJgNwrXUfUEFPs8OrtNAZSm3VUW7RW0YS26rTMWoWTinuBvNf3",
+	"H0XBeDaI2Ekm1YCdTMVswA6+YP39h1/u77DDh/d3jli8v3tg4hEK2hSMdy4WWqXsxz8fAKPt23HvHMOj",
+	"902M3ln/zH129viYxQfQCCuuNPB2ZURSAkFxj3lOjS3ieTtm8enuIb3DglciaH6k+Lm+FOxX+Lxzo6Ok",
+	"jdF+V+yv//zfDqjnw919E7OJLnO23PNI+a73w673h9cxK4SqvWKdx/g0RiPqiRc76nwIlqwX9WA5elHv",
+	"gD7BdHpRD8YDvw2vO1J82NR9agH+uu/+OvDfnR66vw73/XPQPpyMMjdtlpOXc/6uFBDCZ0QBcoTROevD",
+	"Nf78sMyrqz0HyqEu0MAZxO4+2D/oFLs73n3zq79rUyMwonrTkABGZiQSewbsOy+FCA6DNHWl1j4M9qAs",
+	"A/E20WIykYkUqkDZt87PTUxabqIveS5BeI/RpStm82IRkWhLN9qQlUkJaB26weeA7EUstoofSk4xOIzj",
+	"yLaLHmXUnkcKtGc8Mk3iSGRizItWta0SukDhdU/XWcY6kxavTJhLvyWBpWat+umeg3dwTps5R9ocI+HO",
+	"LE/8mWIznYpsV7wryUCv81TkRww4Ds/ZH86HETvffxPZL8Y6lxdSsT/gd+9KnuYclFH7XMTOD97UHPTd",
+	"/DDWXHO/bfirhYCTFtYPm3hOqkgKn53m7UWCTu6EqFcd1bZ+3W8gjOfy2nUcrnXEzI//2v+H/+//+i/f",
+	"/cPOX//n/+fH/ztiub4yIDYFz9F615bs1tZu/cKSHXn9dbDxy9z4G69SZgq90c1IJ8s9OEmWpeIiF8LA",
+	"Ck5yIVI9i5gCHsPmgY0k8LFRJNL4UuSmVVzFtJHA4U3PE1nx6hbMDWOxya6Oz+/tD4aDYbuN3Hq/tbrp",
+	"Gj7xD76PepOMX5g2m2FSGMbPMcKKBkLDszYupZ2Jq3Ooy1NZPM34Rdv9nwp+KYUpSHu7qSHUfc6mPEcL",
+	"mEy7pTxEYQZHq3XSO03rS/FYmkKqpKD7a5xKMSE9Yl0ikbU/3bgyVk6H24CKcuvw6Kcx2KBXHyp6iLmH",
+	"2u8H8Pba0Pfbho4k96aRv8CH3kc91XZ9LFeuFoz18ZCCSqSVcBaIUqEB4sbFnGvZyh8ooMLbHqw0ELnp",
+	"6py5XiN2ketyDgGvC0uOpSI+amTFWbpHb8HSvoJhtZ3qmpe9GVQKyRIirVNZ4ASFyEGRxcH0S9JlrY+6",
+	"xt12tjRxo7Xtpnmd4kPvA6uGSdfQR7/0qbiUNHTTX+xd70ROaP63f7liv2aKXeG8mUl4JradADphbpwB",
+	"PWWfh7sw1kjieZa9nPSO/tCFZLxpSqCvcmFwpxTjinmC6+9bFFw4Sa7RXNhjSBZ1Cm4YdydaDSG1JQ3S",
+	"LT49sILNo6N06Wx/KPM2BS/KbrfkjB4N/Nv1aXxz8s0LluhKrapMNjWTjjfgLBFIJ++MO1Gub+3TnoJZ",
+	"dnbje/YxsAPgYR4nXKUShIuVpMk/AWbrROfCWpZjXhaa1A78DMrENRBobBgdypl8K1gfdRA4dWTwhSUK",
+	"xIEVL+90JmNEjU7cKNtomZurVuDrbeU/v9VXtnOKhcVLnlrxRcFJy6QBuUYzU87gH+VyduOAzrQLN35W",
+	"3e/wd/6V5Yv82iUSClbCmNDerJVgNn0WDdx2e+gWY0w8sqlwNGO0S4v01kdl+06mWhthkPwXU2EqXTdi",
+	"PDO6ssRbzk9ngCs0hhwzfo70yrrbqoNoNeVzQecxbczKT/fW5xUMlZu3xNiw8z+JXI+nXKWZ3eTlwwWP",
+	"1ImBoRwWm8fKrkQOJo15YaMBcp2WCVwjqSZSyUK483lMWr1bFyUYz7URN8dqUOItEXAvrS3LZlE9W9ip",
+	"3Zb2OdkqPNXtq99GY5zI3nYnm8vY0KyXuUlNh6yze9SJ6p4Q6MD7VwKl14tm3iLgJV8ncFT01XONqGbu",
+	"qCl7gTViSZlqtX9ifr56qvPkZqNSw+SyIiBhpslhiIcU9aDuyuQ5N7I14mVhowVIQDBB6K9U4A9NTSvx",
+	"28o04wxsN3Pmcjbj+YJUyLnMhVmtb0vQgvglUaREgBhd8+9ZPwXjF6LhI9BKrFzAFTJfoJpxU4zD+MDu",
+	"dOnb8K120pRxjFoI2weroc49e+JFXA9caPN0LNn5cQfcaYgozitY4bZpBXu98pw/l2bTAL6tD9AGtr3G",
+	"UWoKEEpcF+NkhTWarNRO8oNH2bw6QlaHgNXCrwc3H5m2rYA9CEfRZa1Jt9vMTP1SiSVltEKYSCW/UNoU",
+	"MjHHjAcfMfLNHzFZNFKoWV9pMgfpHFh5rnWBYgF4r3cD77V9gLyhQ3zEebBJRViX9wZttOmrNfcrTgr7",
+	"JT7rdZ4tNbqk6dvtZPrEEGJJ2cztL93YsTMLtIdPkd62ZdPekNVqZsr5xbZj9tEIuJftEe77w+GPf+k3",
+	"NhXtlbWl3tmrfdxaHyeZYev5kPTWcd+DgPJx2HM7okK2YO4FQ+gE+MKWMyV5a5Uxp2nqQPXnmA3pPruj",
+	"dhtxbnS2mvcmWEo/VH+Ig21asYbBwVy6XdESgWg9h8GFWklQz7zFoGlLwtBaxDAZsEdVpBf60eaUNz0m",
+	"20987AOt4dcJULpB4H6tP92Lei5eCodNYeZdw22qMb+iVk9do8FPj6r2g29PfVd+8pY9bhp9X3MK3oKn",
+	"r+ZV6dYeeDJFOq4cfsuB+JXpCR+y7gJJ/lgIwAzDB4OQrrqdYqnnpiBxa/b+zWztt2ksvyH96maauakF",
+	"cXsj3bKVbUszmdXqO5oQPp7aHeq3LSpq/dyvUVnbKN5jmZXttjL3C5tg4gdCSUlQNDFPViqr7LK+j9f8",
+	"tSWHFIPz//4vLLVN7ByzfeIxZOwZbJ0I2yHc7UnoY9xAJr7JcD5oCYWwGT8flMOz3mXkhHOKIaGROE5t",
+	"alRpA3K9WvLLBSF3iLbEzBU8vnqn7YAteZzA1jKmxCPo5EbFunq05aea36QTSmE4g/D9wEBke2yMNUiA",
+	"ar9K/uB108hWbEn3JLzaXi3rd+7kWI6HHURsfxcCqNJWn+KxRSNre7N5fWuXcr2ftvXYrF3AAOZvgyWs",
+	"LlIna0Bju2p+pAd2TqvTn5rHuJul57W4LlosPGR1E5RmYJELcqnegonnXBdTJhQAy7hVrCzqkBxsKGUA",
+	"Ai/hbxsBwHNhX/VSfe0u3c54nfscegs6aux482K17b2LvGgJDQX+Y8M8eDPIw4RRHixO0aagbJDGmJho",
+	"fEShofgdQ5AeNtOYXsQVm/JsUuVnFjxzDmCbOVGP+4ghhnQirsb+8pnxROdjcxBDHOqe+eMBeWPQZUNO",
+	"r5GinnHYkBFGmRJ+8XAY9RQETGz2PcT10M3WSfaiXuuwOioRdvkf26YxfOU717D98am4OvXNP9X52QGq",
+	"Db8VPCumG97VSuBzs9Jv6YCki45Dpn5f/q7nhnBKLzdPn+2q7dAF9LTl3CmbuctVkJ4TOadvZLcrcjFz",
+	"OXiw55lohKF+ftgpCvVNE0x2GH1+/31rXGoFJfsqF3Dwt6aYgQbWne3c4I0gOCKrF1vfAZN0IY4BFbDJ",
+	"SbpJSfX4xbVaQvUkaBa4J925QrWkZ/hmE/PoBsbQzJv24r0bR+sxtDGVGwqs1UR9VGYVWREazSgKOT7X",
+	"pUrDlNmIxZm+sjHFwD9iHyXcYn+lt9vtkKszE7pbIbtgpOirrXppSiCYsGCTGJwU6+bXtkHPeSHoOHSD",
+	"idsmYpoOCPIOl45KiWlwIzD9T16KdLvLs9U9TwPNcN1bXoPsZPhoirABvvP6WCn3YKveXd2zqsXWjazC",
+	"Mje7a6+nofzgFLKM55hraKDFNiFi+Rpt40gwbsD1MYEVNxTRCc+BZArMYLUP8CxzcYbu922wYJqmXBpV",
+	"6ypvk9P1WBQiIb+mSiEiXhXe52jzuyKK+W5GWhmEzJ0XLE5yWciEZ2O0QMQAKu3Ow866rO7GFrlWkvUJ",
+	"fZBstr//5eH93QPm3nFg4M5LWDST/a7HybYuqNrkthmOW4uILbYexSrEEQh+KaZiQQEubnHR0Xc1XcCK",
+	"D1YAmAibRdYOvBDOyiqZjF6CYdL8YFW3hVPIdIsr8dnJb9nvD5gfHJ2/iN0f3P/xL//+T3tnW3f2bmVn",
+	"bSc+YvvDD+rQyIsZbxfX/Mn493/Ce+UOB12pelhWjO2MMUoAxIeOuR/BW91VzjN46St8pz0U4t//ycbD",
+	"KbBW2Ci0nWYcWRHkhKt0dVxi/2oqkym1aO8IBQyfAWLWsuSQ9mgbl+5jtIpuLB/ytRAOL7zJfyMRw6E5",
+	"3AiZ0wQGrMSDDXB36IX2NKlQTu/iJb85fwYxAazpE+Qj+8oGyoPt43zRGZ/JvlLvfQUJC5pbMuI2Yvhg",
+	"+BfyUqgV6TEN5IHlBq2VGiuDxM49FUcEj96MtJx53GHfokUBCSFenAbuvlvWvy3IH96gMb8Q46ku2+K8",
+	"v/Yc1l62VNvoEJjXtoA3myV5WPCTpQk4jyuNDCANJi4Ub1mf6e5V28ZzFLw11vNOUU/+7Zf2+RXAMoGf",
+	"Kdyam8I53SgaIZOeMEQhhVm9lu3HpBk2WV3G1fRviwAyOvPdiRh1dCNwmGt29Vi3tL1sQbJJ+/xAil2z",
+	"Ztxg5a5T824MPLS/vFmW8imNdDh4+GDQQj1vNkZ3opIOCcsVlSGjVF4qYvRcMV0Wu3qyi4HmS5AwI0Uw",
+	"2v3YRwPElDcT4r0gySXnJwLa9Ct6vNMAfQlgnD6cyoKoDeWCrCc2dOO4+ZoC8M+c+Q3MbiRQ3oIT9ssv",
+	"vjy8EVp7K5Ld3WywhpavOgcQ3AFqO60PQTBCSTbjonTA63IuwuQoZ7z0AKt4j3faUdF+Ij5gKUI7M2ij",
+	"+Z5ytNIzt2+N4hmU1RezBfs1Ox+yX7Hz/R//cn3M4lq6n/3d/uRz2uORqr8H/x78+JfrH/+VAFu+PPz8",
+	"892DxpWhlnuR/cN20Yt6vt2ObgKc03PXWvDppWsRv/t91ez7qPcSK0e0hQF/N9Ust/6ayitwjE4Cf0Zd",
+	"8boFJcAgZmD8n+KGZ6Brcbm6a+A/oW9g/+CLdufAh7oE/jbt7Ous6+GKVHGc23lJbiftYR0eExnv63AM",
+	"wLO6wi0g8+geeEXPbxV+Ra9uHmtFWKrbnJRTfLNN61wRCtYWYj9uGIzx1cZCNCfXEIvdDG6Izl8a+MY3",
+	"cZ31sR7uTqIASij1sK0lXFLkbYRLWgXoWy3XmQfhmyvtkuJrIIgg5czO5UWpSzOG9+Nts7xD/0KHk70C",
+	"BCJGMKUxjg0AcxB1qfooroucz6laInympzNNkJTu0zv4SYkLjBbGvzXODSSLquX6tEeqb3Gfwly/1iUD",
+	"hb9mgD1CY8BIBWCHOxGLS2WdUGPnzwPP/xnChDj/kD17FXNJeJ4vcMS4tejNG6lY6WLsTIqwDTHGM7CY",
+	"qC0dSCembhrYuvSYDByYa6U491zwzriKcW21KFe+TbCd6POCS+VTduOJFFkm8vaE3Jngarxh8L7zkLQZ",
+	"N+AZMBX5IIsgr5NTYHp6M2hFA6JxOfBgPs/1tZzVNBN8ttW76wqXuOsU5LTBFRemwKZuI6hfpi0R/e2I",
+	"k5cYru+yQP2iNvckoALLJ2I9TbViw2Y09W/Jp7nek/kqF3NOm3BWiPmmMGWK8Uy+K3XhztSc50KBzJoK",
+	"Vs5ZoTHWCkvl6KyciYjKmtEHIHOz51XCmK+EwH78M8QDJwVXAFjelsdl+x3Psg0LEK1TOF2jhc5swxs2",
+	"gFO93TFRk1uOqBlHUi3a0mSDwTc6bT83VFhvObvl6Ql7ePjgC2YL9jHyUZjlHVzlAqRSC+iDwQrJFplY",
+	"emiCCGWNudA2SmrZ/r0CP+SpxoBznklb39CexrZqhRb0vaNoiVN9Ci+3sjtV5e6tLELI5pywilrCk/EB",
+	"K46vq2IY/8OuVdd2n4GcUmgGW2wR8UlGoOIND4bDlZjnpWnv57evX79i9ADCl9Tidx/UsFoPh62wRoUs",
+	"2mA7z6Y6L5ihlCFPSez5gVZah0pfLMfbfXP6zOnQCxdhETbmeH6ZqyOUdd4KMRf5kX3myJ6QeNBrqtXr",
+	"1QL81c0xyKtY46SrHZyj7ztekNcOzl662pyDlQkBIm9/v3HkjxhnUFqcvaKXmFSFJvA+DbWz471MKmH2",
+	"RuVweD9R+I+wnxKg5fareKTgbp6cfYvSf0xPSPvrkX2dz4R9nFHZXl92nATJ9evs5rV2ZU8d9tMG3Oy7",
+	"UNqOqoRfGx1tF8QFSJPhHSsUq13E66iqx3F2nnH1NoQDC1KcC4HQ5zsNnSq3hUcp4b5+FD4kMO7Wg91a",
+	"1xtFM2E2TSEB22KLNgaS3i4Wc47pIOEXYCmP2dVUZqQHBaWbma/cjBXac5FozEHoYyOGcWUgWPrB8L7F",
+	"IwoKHDfN7FXnVubEjjewE8JifGffd59fYhNVuoVZRct56hQDw/pTXbh5mR2W8YtdKyMVtpw16G8XmhXa",
+	"BTVh2Ri+BcCbjcmuNrJmSfv80M++BRIrXLmuC+U7Wh9vTebnFWcOy8+AKantDEGiKjoxeRYeGrJc1Iz2",
+	"x3C+oC3ScDWGwhZUENzVHwCZgHIEquAayphz0BlV9OUxi+GQTUWWxiPl7neV5OsycyPbQsRKNZEFhSLp",
+	"nJlyLnIjUhv4xEeqU7cDNw2XUOLr18hkWj/iwdpQgrOdPFj57cg7byP2+KrWoP3yNGzXfvedbx53sHHm",
+	"NiMeUo1Ls8ZdQ1cErwfsp9JX7U6XjF+MjUi0Sle4ySY8pwPBzsVUWhDueS5BXsEQCj2pcDswMqIeR2TL",
+	"kK8AvF9bBNVn2iynzsiCXYiCLHA4036psGw+rHgE1KKqQIIWIaoo4SllREhVfGeF1Il70xI6oq2XUCq2",
+	"u+to8C4SyjLPLOPcr0mHNnuha26X6ztyW9x+/SuLzHLaWlAJxeWh9a1vzlnorMWDWHWi85yiq3Y2qZlQ",
+	"z1rbXf5taUdPQ72+iQxQGYQc9NkHgXb6JdrMK4KDLLPtCuit8XJsks6a8NarHdTcQ1xzctgMeFqrr4fQ",
+	"Cf5zSDxjlCboe5+b22726xBifXOw7YZ+lLdSpSFDpZmmVp0Q42QKsml32ux38cQ3FHyJnPPENQkqAywd",
+	"mKaN46ndYjVqnHgFKB78ZnmWFXwnuBW2fmILyNQNObvE6fxIu4/PeV7svvhtlar4/LAV5HpDFAI8lOMV",
+	"Rm4j3q2nqagxCEjbkApWB+H+QGalrFqsQFgjUavH3c2fBSOymF14/tzlay7y0vkIU5z9iobzD5AM1jrN",
+	"ajdtBa0vs+KpEOlHgAPbsHpkSCvbAL+5Gc90viJCcC1W2CtuDAZoGok1Giw0Zg01DIOXXarV+n2286p3",
+	"GgzwBj/kqUcj3jDhxUbGpCKxyMFzD5GQiKZkDI+2ZVN0KIsaFCTFCNxbKIuayC4o87Qyj93Ta8S2r2vA",
+	"evUw3s1w3vzYgkt4A7BAY5gBm7FajgcN6sxfoMFH/mX6fGqbeF99sU0EyW0s/odmpwe58uDJoIk2ogGt",
+	"c78qgjJYvVetu1Jm4lupswrscQPqZonqCmOCjZ6W6lJnl6BMSkVpgJtJkY6vNSmbPSsrirA6YgUVgpit",
+	"nBQxONr+p7DCYLtmltsyTzcEEPmKULVSoOsvEDbtJ+Hfi4JFbd8utXEtn7xUQMarQh23gHq1VcRQlxoj",
+	"ruTOpmVFtkiOmGtTiJStADnfEJXztFRUaanlpLoZrAiTKoAZwTu1BXCjU2Fywz8SpU3MZeeaVoDVO+MF",
+	"mNd7UfX55OxbpJHbgnx19yRXkRGbvrMBLJheGer4ATxv83jA0zIIBGwxWFKMga/Z2X4klmt71iqAps0k",
+	"MbLYdw9/qUWcd5qWq3xwY5rBZqhhNYQvv4P+vqzOuAjnUG1SVKHPrpckS+X00Y8J7rtsJMLf2FzkDo2j",
+	"u2VlDbXpeqPbtq77AnaqKncLOB13jL63aeDn+rT9JVi7Fau3ba7NFoz6Y1LtkAive8vHpX8IhfVZRE3L",
+	"4jZk90SnFarmavp7z/gfbQ2EGU/FSKHJGSMToTq1e2TXv78zYE8g0oMuPIAZ+LbvgZeHDhCZ06uy+y1V",
+	"oo+sFca9TWGSje9sPZw5xlbZejhowpGKEc7AXOYLxouRioMzZcsn+tesgwfesGFVNmVpwF67MWLwZ4U1",
+	"ulx+25WcrlI167GaGxzIANasscloyXlXCvu7td6tSawC4itUkS9C4ouzx1D1zmTY8cWWs/hgs9B/zzPX",
+	"cMhqQivJio9Jv2Outmn0exiv26rLbWDhXFKkrImvYzx7JaLdnmchXQk/ur9K9OwQxLvCgluLzNykwNTN",
+	"klsbAE0wu7XLuRWm0CdEH1rF2v3YVL+3MfUuTl6kjF9woCOBqYgKHVzdthlgbVLRDYXkW+O968EKF/yS",
+	"CmAiygeF/mM09tbpGtsgctdNC+2GAku9PqjmnbeZLYfHswRMGL6w3Wp683o5d+aDII87kqoVaS2vMU7B",
+	"xbozfArEn/jVy7PXKCthv2bve5m+36ueNHHkE0BcQki/OhYtxacxlXk5XQTSW6bCVX3NxSRASCEX9zGL",
+	"GxH7PmxlsWViSZsLAi72PcNkivEaJONhVg242lCtN9YQ1cGvdkuJKreeabLeRFMPDroTr+pt8MVbdrcu",
+	"pclsg38UOt9vMJ/Solh/t84ZhZnBirvwIGylu2H1FopIRhQDxuLaT8uF4S2Go08bQxxHqToWi9vY71uX",
+	"rkOJp1umzyY5RM3rF2YV1Z3cjWvSsvubIZGEosXfomqw7n615k9vpA1Q72Y7g8ymtosmAOedJYufJXou",
+	"apGxpTJHVUwxLs0RnHJv8zuqarikM6k6uhewo9NSGRdvTF9QB6fUPn6FZjfjS7rgd4+oIxhvhZbWyj//",
+	"/Z8cmSGYuf7pwY5FU2TPXz5mv64w7ZCEPH/5e/brCnUOcmQhyg5qnh5hM2ePK6+9A/8ufC0vDKfvY15q",
+	"AU7WkfLFtH1U/gQj6GMKzrcY1ti82fvrP/93Qqx0jUPbxVSMFD29HLIfuUHBP1VNWjkDwc3Y6Py+eFcC",
+	"qEuhmxBvLsqT3hTpznG9zutR84VopKpV4CFSPpBGO4JjVxq1H0LGHLFqLYPg4rxUmI7dxPwGFoQo5fhS",
+	"EFgoMljXpfWrxwlD/72o5zpE0Lra841Kmh0PrT9tj6j96ouvoKeztPbdc+ySMFfrv7iy3GcUvua9JLcI",
+	"zLAFzuq6shh3YTmo+OpN5bJWEKuaEe0jGBCWFvUG937wcLi8H9WacFuL/MIaiW/1jKarfqBs8vHER09t",
+	"jKR4Kxq6uJ5zBCQoVSLygktVLDqOpl6ntdtoXBRtF8ux24/fwTtrL2+m28tEzasU6k3ASGpp1y1il3MD",
+	"bDRz/xKwyVUaHhWza2xFneeXfbRE7OzhPxXThVcolpqs9QXZF9xcugK6lmgQaa955JPAOx6Q1eW7HL7x",
+	"5gjVqahiYZe0Fmp3xUrSMQmm2KiDGx6WDdWItgNby72aiFyoRHg3Gwyj0MnbsdGVygSYtdT/uFlBZ21a",
+	"m23z1PXSi/x3Z9BJ8Pk5tdsy5m3gGEOf4UY+IdfpzdCMvosu6/7BJTK6mShDBrZkqDy1o3f+PnftoVqk",
+	"+7tyRxbWBejciPfMIGQbm/DtJX5ySyAHqxhEi322okD3DHPvseA99k1E8fKN4W6RffWTMZ9bOCO4WNVt",
+	"Z654EPqLnaPasP4SRUBAyp1BwPICsLmD4bBlzrfEAitd/GB4Vwyx+2kPudSNK1DjWjed2hrOCY8wV03w",
+	"FNS/b5Ctvt3irDo+2NEDAk/fEWFZUVigsQ7k6zhmmZgUTJeFgwJo9rIhvmhnLJQ6lw9uehsTwBDx5UDn",
+	"XAhWiGsaOwGSIEhqQiHJYOvNeVKI3NeWKPh5xDKprN8BNjvheS75hWC5KMpcNdAdD5xVagW84x9Ho+vh",
+	"cBf++yX85yv4zwn85wl8uf90NLr+4umbX7WiPL6GWNwtQ/G20BK62/RXwm8bsFttIAvA423SNUYhr4j+",
+	"FEkuigE7m+orxdDyA5reMZMFS7iyXi9M1Ec3b0frOPUYOVBVO5EbC6viFm0nc7hFvAVmAnClWIIDoHlk",
+	"hliSVTT3MTO4VtaxRk5Pm8nGy1QWrMi5zAYfsoEVbzhcZ6Rti0RqR7W1A2ld81yo2zQiQX403Pkbkamh",
+	"36/cw1sG+d9QCjrzRXU65FTYCjxwIXUhzAqspkIzgNCBHZ9JlQa1ZqVhBcwJEFECyAHmFiRyKSogr1Fh",
+	"RtI7N4un9vAxnRb4lX+6VjW303GkBlyhzyWikpcqcbS0QVjyUlTBFVdSpfqKTUWWBiUk96PhcOhWhKqN",
+	"ZFQgU2epMIV9AMMeYY3bU2YuXS7RJiGdYQrSjYFK7YWnq00ISuD6k+8PXm2A4ZK5M3aDv6h+Rz4gXeqD",
+	"Up9msNjb+ZJVW0nkqGdaDg25qqpw2FRcShLm+4r99Z//G9tfhSHkb9i2BX9ERmAIq/E0XQ/+CkPnCXhr",
+	"OnBEXD+cNCxImHMV9r1y/1+FF946RqCzDJjF6qgef0QZt3RporNMX5kww8c1AnuTg8zWcHHU66hnuqvT",
+	"oz7wM9tL/dtnQZ/1XwJPx9JPZ3409R+ea3KLBETrI8S7bwp5IIDitxNNh+NSWMAze8j8G0zbsj42PG3i",
+	"Ew8dwk5ITWeSoPvxYbMCf1+qccitlx/YLslhtUbkz+Q94zSi1UjLSgAntfg/E1lEcNX9Qd02JG9z7O06",
+	"j2lHpzMuP9Y/6xJRgz3rHOjdSPJcy6DCkJNahImz3HpoqSpdpDqF9TNQm2sbPcJjHF6OssSeQx1tuPuQ",
+	"704e7T598/2X73fDj4ebfNw/aMfq/6Y1QOgRwxAh9CeDrutgD2cXe88h8qe0//5hPp+9adYUuH+wTuf8",
+	"H3b/pzff70f3V4znW55LrhLhy0BsgsGH4GxUAJuc8pe2NTYpFUUxNsoQsrPHRwzUeBbP9ZXIAZLb9K93",
+	"IKhy+ONfZvy6fw2l/WZS7fwx2SfbIH7EZsyMZ1ktKIACGkeq5uA7tl3YOhImjVm/tRTcTtg9+xVLoFYF",
+	"edUb0siwq0Nuv+ODzvS4nvc6jI9hD5tuO9TfVhShAb+DGe62/ItaBJknlDFjSZPN714ZLBry2zk3cBUn",
+	"dSTHdZzUju4VvWg/PcX3aewe7WdTfrcJm9siMOCOY5+7cNsKU7Qlh2LiPEjztr3/5WMM6Rn++Jf+RJcq",
+	"RQnURuzs7Nk/tmRB2OBNxQnQ5HLOAVytWzGCikZsOazNgZtuYKD+ZHZwN8uZLNp3AljsD798/APjIL1C",
+	"ptiiWod7xqV+heUGO5xOuIirCnM7PE03ni3W8taigyuAhyVp0cIh4tLdMy5kiiV6JowN3u9kqwskCEst",
+	"bw76cIe4sVhL9yrcWb/o/mJGFQ7FxoGm4fn6ePnVNpjRQ5O1KowzYBb2SRcB3QiVPheIOgXclOLwW0z5",
+	"gb582SDzXS/e0obXGlqezg3miKU7vcwypZKFhGDq/rOTbylNItGqkKqU6iJm/RP4NvTUhSMKOaVtiE6h",
+	"fb87y/RNPvPN1A5M0GRjXlt47bc5SOG0u1to6nt7g2ZQ72KDrd3S6b+2UL+z6oSl+jeAW1mf3PW1jaRt",
+	"1Pgg2G02jLx53mcNlEpuW8tvfwUc5nCNjLo1o/yoUX9dyL6LE2r331ClvROuUpk6TMUNThAkbYsVSU04",
+	"fOGChJOp1mYVjhLZ5dY244DKXZWw5UagqiTF/VJ88phK97c2mvH8ApQqfKSC/img/g6+zLRydcmgrh2c",
+	"v1TYClKJW61Q0LPZk6BHVErENvZXXYh2PF1edYxdmbdyPidthtg0wukeM4HFmHUxFfmVNO3FCUw5G/Nz",
+	"M25bn3/7lx9+efrkB7cqINHuJjxLSiwvVQEcLIm5baPbchW2qTPZuBtVE7Xprjwn/hRG/ljb3Vh9b+wA",
+	"6+v3XHBT7JIN1tjjZAZgNbj+43DwIGZ//S//B3xa/PEgtj9TnQ/nmDpfAKY2GgtI3GjmTKEF0VoX+o+y",
+	"mZApZ6JgPBtE7O8HI3UyzfWMF/oiH7Cv2BdfHLL+wXB4sMMO9h/sDJwBw40NOtzfA6PAj/9KsZQA6b1k",
+	"1wiMFtdgqKBjzniSa2PorhhwtmX6oo+fRurs8Y7PNYava9PYiSw8JMyX3r9nGDhqzx4fWzxrPlLVsdIT",
+	"R0yqMuAEbeFtI/bG8hBjAhA04qUSpINmIoJdfTNwnViKRZkZweGmei+BZcaUMxgbP8dARsFc5CWVs3Kw",
+	"ISO18iYxPtPokASDpFQ2G07pGgGa6VxAWgaHRIps0ka0BuwJLgcpnK5mL8+y6m4arD9gl2NcfQ0JtZDP",
+	"0qytPpHXCIFmqrSTegqG0miGtIeb/rKfD/Dfhf9+YT/T9wb/haXuKCT6K/c1dek/P1OXZ+/y4h8a3y19",
+	"Pmh56T83vlv6vPRS7QtMEHkT0oOXVYXbjZL03Vmt1pnZkxrZQ+7r88osa0vQJ73NQPbJjWELVT7V+6hX",
+	"vwlt/r+me6z+QlTrei21rNXzvb0lOsYyXuCu9uFaVfCXXbc7XbBG4JXANC6fOtZKpJQQqSGQaUuOCw0m",
+	"yBUkr8/RH5gzbu+kewskDnoTMkYvoMYiIAalbEKjqCdWsTiY9RGjtmmtkNnDw/cMO3tMoEUD5kqZ3z9i",
+	"HCizDba/0lWTQG5BXErFRS5gzPCuEClgHsEGPHzAfmlrRJo5VwamQEE4SDVht74Y2lz6mtAeyOoHraD8",
+	"jYOGnuGkzGWxOEOpEffmXPBc5I/KYtqi/cLXOpd/Qo50xL7CZ0kPSTB4yFYCGjAM9TFHLK5yJcE/ESZL",
+	"YrXNWrokPIH5kvExM0LYel4IbyU1wEXF17vuZu1SyI9NcSOxFyRcHFIlxE2LYt57/x6dgRO9PKWgZhRh",
+	"eZhasYFSIUPK+LnOrWk80O09S4qAvQP0VO3nJUC6iAzrhOBkGX3IeVlV/x8kmkwmC0KRMgJ9E1aqj0jI",
+	"waYiNs90YSILRBECRBg8W7ZahYnY7x858GZokqtaNNdIjdRnnxFDpE1yuA28IOli8Nln7JEfH4gbcPPL",
+	"IgBIId5vy9aAvxa2PZfcZayD9mDpi2Fpzq8U3Y95eZ5JMxUpuyhlyjE+D9uq1p0WB+ZWWO2XUvGhoiDc",
+	"Da6I71pGfPbyFd7TkZrnIhFYpPfY26yAmLi1QHEKUkEJ62UucqOVQ+uyRi3CGxsp2lAL62VXuZItczEX",
+	"HCHHJBwiFjuDRIyr+4tfsBOtLoXC70Zql2p0ESEmyApYH6P4WzFOsNfX0n0Lhfju37//kPVj0g+OmDco",
+	"xEDCGPT4zesT8KLrspiXxYBVCjQeYkM1Y4spJejmgoG9m5EQYQYwIipnSj9OpJKFYM+ePHmy+8WDQ0bq",
+	"iBnQsG3sJBWa/Zp/jeAICt9ZHMNwbPAXYcMG9bKkKcDtTR4m/LHmUnJnKgLKzurqFKx2FVuWa13sIFAz",
+	"6EexE485MzBrJTKckbX1MCJ6xoKWuBoutPoG6he3sNYjKu6PFaUYc3YF3xQsUpJpUCU5cNksi5ihbOKC",
+	"BF1Yv4QXyRR2US2oN2irwMjUHMZrhEoNLQQenFQnRHv8mhHBOhfHLMkk8FkI0CypIVPILGPyQulcuMkU",
+	"U7FgqcZ3YZYRQ8R5BmJ0zixcjWE8Te0btPV4AvUkIH8mcoTLRPZimcipLkiWKGkeVgJPYHXejtg+sNnP",
+	"D9mjs5Nnz1gmikLkJmKpvJAFvR0PgN6P4T9H8J/dOKIpcapriKoDt6/C+cJ3WZ+kDBZXxzveGbBvlEQA",
+	"DWjZRmxDa0HQNs89Zo27kMDPoBFbiwnnhGxlpIgUxnuX+zHLNSgqJIJswAMfWXhkuCRSINcfKZfBTf0c",
+	"wUB+oA/sB5RYfmAXOYdd/mGkftjd3fX/hwdDdsp+CPeK/YAYx8SyYCK03XaLIluLDH6EOxXRw7VKVJWC",
+	"BbbtPbRk205Drs1+YM+fvTjDSJULV+L6B2qfuLnnSQEvihq1qiPn0UMZXQibtE8UVipYiUTY7usyAvsB",
+	"OJkp+GTS2i1xt4q1mWOP9e5jiY6ZhSAI7TO5SHSe1tbE2BGQUMJ+YPiHNAUyJZg2CqtIUqH70jEgGgVu",
+	"P7YxUk9qsgzLpLHolHQQiAJA88RuSa3E8oJwXUeqRfQ5YtyeMNB54cp89hmQGa3EZ59ZjXeGdoF0RkY2",
+	"NxMEmoQhiBSyrjKZyIJsBDkSUZBPMF/GeJIGTzumn4lCIGzlSL2cC/Xo1TPmJEmHsY8kDOEQ6ApVMweK",
+	"XQmZR+wPbwBXyrVzfzAkR6ixl4IWCk0YcDtewksHuLrwyrPHwFSVSApr+TRArB+58LCIzXgGDJPKshHN",
+	"x1Nwqd8Ku0EwosPh/jGxLOm+tZwGhDq7UjQgfPr+gMV7U8GzYvonoF17WCyP/pyJIpeJsfA7e3ouFJ/L",
+	"wYLPsnikUPZQ2nbSj93C4ULsOML0BG0hjgpRoW/YSMWWSvL2Y9wqOrB79ttfAbR57GqCjVRsi5MCpWwp",
+	"nBtjDya2ckhbHd0jYBK2riiUEaVvQXyCEX3+cLi/tuYohCsBPY49nqvZO9irIxixfjzqjXoxzBTevJrq",
+	"jN7fOabeT86+ZYnIMui2cxVTKN0f2+oFEAqWsvl0YWTCM8rd6aOoydhU8FTgMuPX+zsuyMp29MWeE/Vi",
+	"O5wqBBXGc1N5VNfcu1LkiyNULGFsc15Mj2RKzC+mQRw9S8VsrguhksXu78QCUUPIlm7lpJk0IN8qq+SG",
+	"S48NkcAtjbNv58RXbfGheM8etRfuejCzUAW/jmyZZtCeLI8nbhsE/gEfPRwOj+nwEOGC6oogAe3a1s5L",
+	"V82WcSpv69CARX4pE4h8VB4pNjCgOaFnpODOgfzhry09EUF7AnHnZLVG7K1YoCx4eHAAfPfBcEjqC9CN",
+	"kRpR/C+40PCgj3o+3z2u6jHHx9YwDwLiBQyk0H7MIgeT7GCkvtZI7aEzK1BT/JSv/CxNTcrwKhUJj04W",
+	"qBd3Bok4XD6tBIqxPhYEBT+k2m8xNhSV3kwmwkLLUXYQlCCe51IUPF8EFZpDJZfiJI2FU4UQNws1DTSq",
+	"d9S7PxgO7lPE4xTtAY7Kwd8Xoi00EYuxGnYA2Qy+MOc814kwBolWJi/FgH2N4pOjfAOPUQ9O7LR31PuN",
+	"KH5ru2p4+w6GGFxnazvAnyHF+0cLf0cH9SbTFHVBFoHGPHCYsBoPhsNVzfhxERqg4hlS6poxpXf0hzfo",
+	"RJnBNhz1nstLgfUwo16BuI5/qGZuqFSq4xkrF/lVruH8i9JQiqK4nrsiY6QPNtf3mB7B0qfIPEG8Be5T",
+	"XOn8LW6Rwxc3rMhLU9CZWtqTF3ZkN+4JjGtvnnHZ2I1mhM7Swtse7mLpg2Wb+Xms3ISQU6/cCfCHOmHF",
+	"62oBlQBv3nkpQapFi2CHY2+b2+zYu0FusNDh0EHOcsOP2H9+9OL5Xaz/61CjXbf0JD51pDHW5+ILRnP7",
+	"q7MBWZYF/LLMc5zgg+H9kaqcvM1dYfFMpwIFjxuLU4NAWFWnZi4+7MiWbeW5PQqp80SgtuYHiSPp1ytW",
+	"s1IVMqsCSaBlAyR0ptEUQsw8YJ8jpXQhE4HOSFkYkU2wXjAeDxMH2kWtBHXE5AQMEQSpgKhlMofSsivu",
+	"/intyh2S46BA9fJ5xe5ZoWk9tz6f8Nb9m986o6X9RvFLLsnfvu5oVyNfc6w9JO/Kk/3ZZ2gpP/rss6Zx",
+	"fEnv1blT31CwIAxApshvMZE5yEtYC4xiSGvFCNCIZMV5K/oodr4YqVim4Y8D9lRmaC1J9OxcKuvAffT1",
+	"42MWA0HDOyKVjSoiFafQscX0g+8idq6LKdOqPoIB+51YGIGlDqWyxpM5t/UNXC3KkYJKiGDpD8oaxlg2",
+	"0f1deZQRxJmGe9x4Aa4pxltoVdVyhqZBOqSHYCJ6zt9Bko5WTUNlKijNQufoRaZwlRlP7YIgKXGdR6QT",
+	"DttuEYTbnbgyMF5fMJjADZyyh9qAyyQ/qudjdrtDYZzU+6i92Sqz8/ba9Nirt9ekz+Xp1mQtMWtVm0EV",
+	"mU6NBsVpmpf1Cc8zKUzBGoU+/H3ADKiWMcDNqQ2gS1jgcv+AeLrcu7i+ofdC30Lfrzg4JOWfVvaCCm2t",
+	"I5/L+WAYuCoPap7K1vLhbTJX/X7rSY1s0NVeMTBfG7XzoTIo1ry5Q76HJxdDcVv4HtRTgQnBLIkHIO87",
+	"7ML7vuKpC2/FV/ZvfuUbxa1JW6T0Ugdu+VTn5zJNBcYSHh48vPmN11q/4GphR2d+Im7u+fcJpZlIA97F",
+	"gIdbfv0GgmoaBtceArN1QfutM3/E478DCYCq26ENYiLB30dcyrtltUpEVPFLC9uPRe8orom+GVuDgK1Y",
+	"JI31pOXCtbRCPMQlXGZrbRtTPUJH31ZsuNv7tUoHooLxP/MrNTy8+Y2vdfEU01T+Ru/gI1dQBY6oLAwF",
+	"N9gYCfRhOZiJu76de+gw6nRH199JZ+4DV5JIqb67jdqp/FtOUc1LFTk4EBTgrVMl8F6hAW0+F4p00nU3",
+	"8RFO4Wd5HXFoz/VKqwQuk/l0JX8GVzI4eui+SyyRdzfQXqZVN3CDK2flVhv+Odfmgy4e5cgZxkEjplFH",
+	"LBc27NozwUY2pY821rm8wBwbF2BSTB2rrFDWM6nIa8gkmuZj18xYT8AnBO/4hjwfdRly6E0pwCshlRM8",
+	"BuzUtt4YhofIhzf8J9BeEY7HBQzZ6Mi+sGQH2xopjIPH7DSthDcMFVD3x/rAMGcI9QhrRkbLwY4lQH55",
+	"rNMonpN5YGwX/9iatqxPX0+Cko5W1RwprL/InY/fxYjJIvLOFzfbe8Y+ReYz2AJEU+JmpEw5F7kROPmX",
+	"DkLJ2vXCCpDJlEvFEq4Izw1TElj/cPgwGil0QMU2D9SM7dvWBXaK8Bb9w4ODiByf4LdKpl5Oqpyjnk1B",
+	"e8c+km2kqBQUFFN4sT+E5IGDg53I2h2CADYISrPZq0Dsd9ClGqN3a2y3Lj6iMdC2YrQUcUL81u8j2i6U",
+	"cPkOvvoSNmgPixkbNH7DtilxBdECBcsEN5StY9+xUVn2sPEMvl5QO5D54X4ZT3KOgRzUzEybgh1AoGqz",
+	"yKcbCvggfbNw1DI4pfVJuCEkulQwTZqTa2rHjkJaJFMzBtdXOI1a6GTwYEzLh2Po211iRl5Hbot2COLM",
+	"l2qgnsBsNcbA27FQqRkrIVJbNyY+spOB4dbuGiwAvMisE9nWpHAnfCovpvCZ9lPxPIfIBvgFO4K54NvQ",
+	"4TGaoKARG2lEY7EjiDCyDRh3YZNsXYjF1XRBRSUuhBI5x7Cn2L5VGbRwkXfa5AeinE8cNf5ACQLZ2Fc6",
+	"Xdya8OBH5ll+PcLeFihtCC/7H0eXCNPyyXeP/T/XyYpczle8mHqCaV+OWNxgjgjhUp9itM7V8x9McBp2",
+	"EJxOtJpkFsLocL/DmF7xRaZ5+lrr55DPSO896LIAppxTab8XIpX89YJALA8PDrq8bD3hIGs9UQV4Ev5G",
+	"RcMnzZA5pHIoYmEZPpK8gvL0TmR8l9yGuDjPdDGYq4tOStoWhhQ+ExhAiM4G7MxcXsR2Zq++/g2TMzAy",
+	"rlHAXmW6ePX1b+5SBcMx7NlVaDHpnkvFyZzVxRmMs/ykdP3kNwsOTqBtRYxO0Z0bPdwpv4MrdVYFE3sx",
+	"0KdAzXj+FjKvXEKLx/aLXPruRGLKBmSBqpQUBl6V3JpzJTJ2LjJ9RdXT8Vr42CpOMTIY/TRSis9QyKT2",
+	"fSZOkOUDrVsv0U3X++zbj3C9zeXFr663iu74dKF/phf67NuPc6GrgPtuNpXapW7e4WdLKWUwp3LOCg3Q",
+	"YcMq/yPIZbMTRlWPokx4pR1SIDPd5uqWM1fOk/GCxdX3caW9oXbldL2dAVuKwhywV9XcKTWnmZ3G1cKl",
+	"cKFHf4qcfUIFVXlhA9+hQXAow2JYonBcQx8bKXhAGFTciDTZKtoQcuqiQSn5CesN6rIwMrVlqG16oEhH",
+	"ijRAnRMhY5ys3QMWWsUp1WkCaS9Vzp/tByNeR+pw+HC1Vhcsys9Or6vGtpFiN7yTAVAXq7yx1oY19wk1",
+	"EYV+2dyyPBX5oPdJB/ukg9251zpMmMB0PZffG7CXkAt05DFreIrlO7dgon+hEb3ZkjfM/G0allmhWWzT",
+	"tSxDcujPMdWwJ9ca2dBSkVj7ia3JTQoptCRaa1awR9g02sjdOCywMZF6jAAlWFQywvHKlAYmYk+UtRI7",
+	"A/aoxlAIrD3T6kLkyzPDGLGHRyjHwjfwxQRRNkfqFIvFmNBFiEniSl8R8zRtJJ7q/96GF/72iTuN7Sci",
+	"7CstdjQqgAP5RKw/Ees796U2007v1J26hLh4yxo9RTaEvVRhDi0KAEYgF/GqmNhvG+CNP8OghSXUzBVK",
+	"d23hP2nfP/29+7Y9q701nGGNbbqjGh51UbNrIDir7xl7FiT0Q7MjtSJF32K2nfMimVKyIhSSCTvaOfZ5",
+	"8iM14y4oCX2sDqEUbukUhKZ+Y1DWNY4ZLTX/LoAHBBWE4SXWnwmOpoHYbxLAceiRSiXVqt2xsAyzOc8F",
+	"SjaUhlrP/z3yyTQjhdDkiMHswMixiV8+vhm0HOIgEeLRoDI+Uoiu/df/+r81HMYV2M4gXOSxL+gIqM5x",
+	"RALiSDlTxI9/PhiyX7piM+ybM/bk1SN29t3ul4efsxfYOvtyOBw+DrGA6vt4vBwbQMNCTMpcprhGkYsT",
+	"G6ka9A1+7WIJXNzYoyrFFJfWYadT/oMTU0GyNbi1jxy6f+18wauEnxcikNeRG5iLPh8pXsDhpegHIPY2",
+	"j4nj8mN1lrBxnVsXEbZ7jKiN9jkKSECsHWOB/VwvtnmHmET23rDdaKQQUQTF/FwTupHz0WOTNgIHrULQ",
+	"U5FzZSicwR5zTNelhTscPmTWZOwq1ZCNx+VpkwQfVqSBfC78Y6x0MXa/xTuR13WqIBa4cVwxH/vk/WVV",
+	"I2GEStVEwxpkn51yM55ICGWB1OcjhKIM19ziGIW7GQT9QJ+1o49rPQ7OLQIacAqVWWFi+rYOuf3zUkPa",
+	"YJ8/cvhAG5B7B0nCXX6mywIu+ieV5ZPKcvei0ynJCLwdGagCBuooQXlp5GY3RgBltPd99eG903EsSbwj",
+	"739gxcGbTlGeQDYbfkKHWcEL4njOQzFSSl/tHHlsWuGLlXk+VpCtHwkyvkvd5T6ccaT6ShddmAXJU/Cw",
+	"4zbkS6VkUJuxSJHjaEmLqIgPLxz2deBMwFldcfiGFsghdBvncWFGhDGgNLGxVGMEaUKgK4UWN1Mm0ybH",
+	"MyNFzFhnqciZVmLAvmvA5lL7EG9IXA3KvE91mVsMnUCAkca2g8i+tIC0ExFVVCPoPRzYgB0ODx2KIcaN",
+	"5gIhNOBBNOBf6Tw161y+z9RTTfU7NmNrlRjfuzkjc3WY1ybplMvcZKYpud9hBx6jOZH8U+dGqGJVwhwv",
+	"Ns8XvPNkHrcV63J6qq3/pIX/5KxkeVfgqnJ7LG9VBb+JhdyuW/yRYfGrl2ev2RrvexyRuhLaxKp1mFBW",
+	"+RJziS1RiJfYC1xdxMQdqfg3T6jrjhwz3rEYbrj6AN3nQcjQLZK8dcNLTatj/WvdHD+6Mg5HymdVkItk",
+	"tY5Q0cMPcUiHVPWO9IW2gX7yTn/SHj5pD11I/u9LDjLJYg3tu1U3tcXa7KQTNAT+jKAUwjwwElMdzNz5",
+	"AjOAVvkvXtiu75AAUBfrPA92/p/QAW7fdZdlAeJx/ayEoRb2mZXndxMnQShioJ0Uzh9LbF6jP6n7A/ZK",
+	"m4KQfChFDP7GhwkyGeLcqjqFZK2XhVk6865p0hyvg1/6B8N9yL8SCHiSV1PHdMQoMLG64ilVUIZvhGo8",
+	"jVSQglkNXVzzpLDZfI1x3TPM3h+iIyPlBqqscMIxzINCJsAYejAcYuZiLgxZr31dC0DADwz9VLwhQEOo",
+	"6kqaEGbL29LNVF/hFKCICAPz8yNrAKgQ20sl35W09lKBgEtKLYSLrDGbvnDoOXchxlDjP5HgYmfWQrNI",
+	"Z0145owrjZ0/9juMOBZkLEXqdpsG2dXjo2tn90/nH5bc5RhJHHCqve/h2PxHy+76JIr9DAMF8fJ4ahRV",
+	"3rdQ5KHSUJsys7r0Zc/0LQhhkSs1rj1MTZhkH69GKCVK2gavBl67yrKF/9yNxe0RM3ORgM08IGcBjetg",
+	"dwtS56oRVbhZ+4dfHH55//PDL26Az3rzk9D2Sh79ZHz76a//S+V2Y/v7bXWvzT0u7ZFjyM4t3alQISpB",
+	"knz0HtEgqCYdIRAEYcQwqciHj4X80LaBIPrvwMxVh9J5pbPMA3+MVA0rrhVhEsukABY33tKjKswFUTBA",
+	"Hq6/g9jWV+BfMKJgffTZWrx16MMWZbQ6sNE5g2ZdvbEYXPcznYvYuSgEYkrCVxYPh12JXDhMBpboma3i",
+	"MFJPMfgEBKX6iIwQrn4aNuHFbK0SceSaxXItVD2UwBmQ5ubkVhEyDwMkjO0XbYic5gVbkVPwhsCaBNSX",
+	"czr5gSLpywe++gU9Jg0i4hZCua6D7qgRhGAHJ9URBkGhyA8oHhhD4pKOMNhpQEIiOPns9wOeQoxGTD/Y",
+	"KAyyGPsQi4GLcopWezrtk+Gv8Q7CgbZ65PwL/qdwEIjSX4TIKhXkCQwdTrkrUu4fDh2BWlFli1ZbxCk2",
+	"9AQ3d5kNbgOleGw5VTUUuAHu0YkQ6Soehndoc6zFW4Wb3B8OV5fG+9gckzbnqWiP+gihHv82QLD+FmVh",
+	"Yi1wbGGd6+FstVhs+mY7Y2RedvYuBTWcltKmdW4tMkDu+kGFwQqGylI6CgKYYIyQElW1QaBQZKNooF7d",
+	"84Dogcjt+GlFg48YZwfDffD+c2WCCkc14o4hh6Wy6TMqKBxHlWWgAoiNnKSRVbVLrEFI5xSPyPq+eniE",
+	"OEF+a5mAwnwRK7SG+pwjhQ+ZHfJOQeUz8lFFrlaYjWkME3vqKZNHLOdXI5XyglcAXcU011cKgiAWEIEb",
+	"VMZh/cPr6x3qxZufAtSoc7HQFumH7jtZfY6CRWez0ri6dwRpaApa02qfKvysY2dGgiXxueoO5ivj5yJD",
+	"OECeG+TpI9VfwlMy7EJT+Z0gHpcOS3Fl66kaVyCOSrrzkaqF4h67SyLTmo0rqGVpKxX9ggWlakbqTIBo",
+	"s1S9ptBsBoa3XBSYoW/4RBAgOLaOV8xF3IwUlUZCScCQYCFmOHwAgKKCNw4C6uCQYaAIhYVaU9o9tNip",
+	"C5HPc0kSB2dnv320e/Dg86OwYA7hL/rFZxy4X24Iq22khEq0z25gfaz3LAssy5pQUOhMwLG3spNd0Rkv",
+	"CpHvHFNHIwU1i8KOkI9VpYOMx4rK+RVVVjpfFIKK8p3xmYDaNpEDO/eTikjKdVP2ZblSOnuffeaw1UaK",
+	"+Qv12WdUnaYoc1XN62C43wBVx1GgkOpMXbbGJD5W295TMc/4ArvNSxGDBY8ZkcCtgBWt3Mj16TjzdBHO",
+	"6QjL94QPBhUY6tP1BAD8ShnUN6Z5264xnAkGDHtgo82tsOlaKORMYDytQ8PPcSYUeK1zhuh1h8OHCCJG",
+	"867XbJCgqVT4WhOppJnCeKBlnMWjqjM4y5Y4AUmBDh4AZfGvg90aNZ+3YuGvFhydfoyFVRJzGe9AvSa1",
+	"qFX9gyoveQFPDth3OMoTklp2wfJ1xPzLFULfSNlKV7ZeJIWRO11n6XjGRMdAxK46xtq9tQIDfccwidLE",
+	"rrpMzPpUdppnO8cWESBuilOxDfoOukWyeS6cINo/HA53vOEID6g07JvXT3e/hOJJGZE+vDq7dB0BZASe",
+	"oeKY6Q4FQh3ufzkcqb6dOqRFnMOctQeJjEe9+Jg9fwpbdHL6/CkVAxMqBdiB51JhVoE29kCOlC8wCX3F",
+	"v4gd9gBtDywFfGHeyvlcpMe2vnSG7QQ/DGhedMipuAD2a/VH2rABO8G6ZsZ7JwnFUS2IAtliklT8DGsj",
+	"0o6wHyq9BgLkf/AikL5aqjLpK02+lQqLPS4E1DmMXQsxfsD3Y1cd0UWtuIftF0FB0BVf4uvIkKqX8WP9",
+	"VdKp6elGyTj3lksSqf0csb/+1/+dDRst+Cpu/mUMHAyqPtvDtPqHkfKLAIXDsP+ql4p5Nmbq0mGWXnA/",
+	"2ErfEZUTFWzI+vQIiWL7O1RLcpe9DBAc5yKHnQQoUVdk3dY6naP2yRBzsEbhESLQbxveV7sLocRJ/jC8",
+	"iI5CCl7UG6lvx46z4MLvzR6C9erT3yYoVYfdNHoIVmxnwE71leW0tgwa8Gsv/UBL+CuSXgw+o3sQ9itN",
+	"dSnIIKsWeAtQRKAHa4WQSyOgTi30lIpEznhG+KtYmc7RNSTCCqlUvD94IHbvxzuU/8SArpWGq9Q48EaN",
+	"xUq+5l8DQX2mJj7ElWXyrQiL1BL0GJXW9SuCoCGY/iUVCjGW02BVxHoJEyCyCwKrNTDJe4bBnfaUFU8W",
+	"va7C4phpaZc0dUtIpIa7qprVGtLvtlYzrKOVwyv2TooByD6+OjFXAU2zjgkgdgSficnz+NDh8OHnJAsF",
+	"NfUsUOvcVpnsXASSjkf78/GOPzO4xoQ6DmuMUiKtYx8SyBD1xovZVDPeElYiW2AfYj4KC16BUoT4m4mY",
+	"b8JpcA7ZChg98jRyX1uEVWgKqmXAG6ix4EUmMFUSk2xtRlBYrP1KWO3Rt4jF3widT6tdoibkWTz2mKV8",
+	"gZLQuaYIa1SZyPkS1Jy6Z7BRKoyTBzEA0ITFzEXrra3D6M6CW/LBYBC7fSOb4DWuwtFIxXE8Ur+wsgx1",
+	"HFDd+VQXGqWC3X3Wt6x1mYXujBQc78hpTaRQ1vmBI/2RpwmRozAj5bYyUhKeF9Hz/Wg4eBANB8P94UEU",
+	"rX1i+PDL9icOov3BEJ44GD5of+J+dEBPHO7v4xN0etzvEb78YBh9tzscHh6seGD//n164H50YBd0ReDB",
+	"abl5mlYg8f9OLHrL5jo4GXjSvBiILIPwpJ0mjPFUK8x5H1hMaJPRBEer4tCrxnUL9Zi6js1nRaBZhVep",
+	"I1UI/6pRBpL4LZT6qYboJXcYnQbm08iJWTUgJ/13XrSX7oX3d4ZIUgaRvFHPKUb1BpYXAjk/FeBPiUTC",
+	"nGdSPRfqopiGBuUQm+/j5ReeljelFeZllU3ospJyXzqmD/KmpdW51eZHasmGE5E3yr5kWYOHq7cbZl0U",
+	"QaxMm61geaFjNB640o7SOL3H9ubWDl2HilVRadhpw3gBCnSX8JpzrTPBFR6GbhE9GD1ROrTmvFT/IbGa",
+	"P0Xz/AzxJLUpGPcXeSKL4DKHHoxyXSx1mI3Z4rzYoEzVageGozfO8cydAfAIR+yEfls+olE1gMyu3j9D",
+	"39X807lIhMSExjpBW1XAdAtZ57RUd40sA8NaTas/xc/8HCpTWX8AHd5bvWK3HVhDj9SLsDj7Sv322LgL",
+	"sBT5aisj5YFSbb04J4Y6K5bxXrbltI6gmJwFr7Bl9GXufYJhFRyIn26LnnBleKjVCwkyCmqUdhAudLFW",
+	"SqZeQsFnCoMl3aYCB5VkgmgKb18/DaOMRuqxyIG2NOFtHKX5/UkUeiLKrJYwbkYKLERAsiLWSIzDKjI2",
+	"pMlXFBmp/UHQy1VtiCszv49Y7CYFFYcOwiYSXWYpqzlZG4/fb/bogUykskEyjTcOwzesBwMWYwaUu9D5",
+	"wjlYObpdvOUJ084bbT0YhAGR7XE3Hpmoli5vDRX2NBB4T+B7oHGFvUVNKBp8vdZl36MXLyPN5IKcMiIj",
+	"xCO0a6KRKwCwGanPw8Wp5dAfsRiWALeMZzD5L8Jng9R81veyN5yLiPxKPjufpgalghhzZwjoVS2yzofO",
+	"4UFmMgjKAlQmlzBqaUm8mlme+piInyPPdKNbxTrp50/s86dnn2d1xCiK+CzVrcbaEC+1l/jDA2+onYD+",
+	"IDEIzTHQPtxX3kBdc2TDVMY98BViyKM07B0lRUpL01Qimny0VsrMolk5Z1llEepX3B0M9RPrpw4Suzy3",
+	"qMIMrYXZ6tFVAbMq+rbwN+deM+x2pFYGB7H1sUGwonUSLc2SYHHFq+V2AYfEYQs5Ey5c0vv7neiP+G7I",
+	"aoWxvqNVGHnWATJSQa99I0RAEptCGTia3FmwG16FEMM2yMKIbIIsAnLJUEj0HKTi+6W6MUzIguRbsDEq",
+	"fyqy1EYPQV+IUO+x26xrzR6NY++wYjKtxQSFUTroLYC2IpDzgCdadBrH/GThA4yn3ISNWlbupkaceKSq",
+	"2a22L9sF/CA2cvsGQDuqnwgG7Gb+5eUROioyrxVFtGE0n/L4P5mb7l77TVN/GgsdGJ7euQT/Yipmm3Dz",
+	"NXqx7Wjve++Te3/LmvGkCkogchkxnuTaYAFmum8ujdmmOUeo0i4pzsfsBubhu7KM1NYKQa1XphUyJ42L",
+	"YFQcAyCAySpYYYWUTlRspaC+TFYA8aU29SXGZn/1vpx6zpwf0e0kzt2ljlBfm09qws++omDzlvLGab01",
+	"hcEJhbszXohc8mwL61tbfffKbmHbxdC8RKcrgUNcYbQXfiB3eSEana0FE3ED+pSBcidwIktHZRMckdrp",
+	"3gJOJBG51UFz4XBB3Dgwqa7QyVtmtA1DtBWuUKe1rya8EEcsxrpWthR2LK7nXEF16BKf4lIVC1umJUYg",
+	"bwBypJDG2AZ6xR5dO2b9H//MeFSpUblICq4uyozn0UiV7NeM7/31n//7fSi00hyhzkN4bRt9Nc/FnOfW",
+	"ggvpFRRJ6ydKmB3gPFMsdg+P4eHY52bYWdufbZSpKcTcsD7PJIQKWx8c+L0vIcZMYFDW7LlnqDIfKT9P",
+	"s3PMApUeLJOSmsC1tEDildF5zi0WKP38a/sF+/Ev7N/+V2aHsIfd73jbdC4yXsjLCqh9pII9Ac38HOOl",
+	"qg7u2ZBQ1EFpGgAOvdeHFf/xL9/ujFT/709+8wIC1tiP/+eDwf7g82P2pMw50Ja9k2evH52w33/z6AXU",
+	"1BmwJ4N9CNG0ODBoQKUsUZvVeIQV31LUKzGODzVVqM++BiOlSb7uCC2l2c1PpCEuzXalAGOZjzvX28GT",
+	"eIYVtzPIve9hvz5FN3xSNz8a6PQSi9wevGDled5K7mtVxJaJ080AJDCEvwE9qiMlqgjQJ13q54D48SH3",
+	"pyFh2muEqZgdvSth5VhjSiz1l3OVglwDzbC+T9vcP/iSncvC7FQ2CPD5K8oEpWzOkTIiyUVhIb0xLLAK",
+	"BFTZ4thHp4vcpejC9ygQ2XTPkZpyMyW0dAxDyPQFSHirZY7XMNQ7EjSw7Z9IusC+bwgUxW2KKjeR3QAA",
+	"wVMosP3cL/onbn33hAbvNuN0WAICY0lFR/5MT/uQw1RkohCd6cupuNRvrTqDLR3bvJMqS2i4v1PpVBbd",
+	"0gIiI4rjSAUpT84FlmO7qaVXZJ9tIxWPcbiOVNzM9j/AePrNN88et7L7w+XVomX5BMD1s5BpYSs+/Jrk",
+	"QqXmLoueGIsDuKLQSR1UK4hsQ+vESEF8kT//AV59bDI9h8w6TLk550aE+cxYMA56sZbes8fYUhVdF7s3",
+	"4ipQqhouPHclVaqvqg4PhgDQBawy15lL4TMS64P8+OcDdvaY9a94rqS6ILPJj3++j19SXMMOOka0An/7",
+	"2VRcTXleQGBVXrD+s7OX7IsvvxjuHtjpfCdMcYFxy+je3989MFXjEdvfvQ+ZrQe7ByZip7uHJmKHu/vk",
+	"aNofXrM+Rd3toJlEwEJyCr+sFtbUIyINRRpiBkZY9eW4UYmMLC+Z9O6dkYp9B0dswjND9Voupc7IcuZs",
+	"YqYqdRYg+0IIyKXOMOwC4QUm4srlZwKYSHNziqnIbeyA33RI8KP9wDAQVWZUy09p6lKaahEG7BHlPrJ9",
+	"THusZjVScLCPGaSKqIRQtRxwmgpPBAbtIYpaX/Eck3sLtxZo6oNNxGvFLEOPAvkQM2ASES1X6NNXaqR+",
+	"f8KQkadlLgyFtNdq80UsF2DALHTeVqavXZPE0azgI+vS0W4HxvJjFKdp68PPtnOOGK7TK/9aS+baE8wM",
+	"AvoRBh+BNxcjoy5Xph/CwbiFzLnnvGjpXVzf0Huhb6Hv3+orNoN89sadjBo4hnUCGhEwTxEQ6VWjdL+3",
+	"g64dhJhrBzXItYOPDLlG92lVlI3IJSwKXF03o8infKu0Io2fHGG3LxY9zuWkcBKHRSxzFxqLn2LsnxUz",
+	"GswcNqfOeQOxis76LRUSIqlrb57pYmAuL+5I/MJeagHa1G/cSGis2ELE0pxfUchhJeuglHIUyg4WhIiC",
+	"V4iVYRK8YHTa4QuSiUYqEIVonX0mhWsNRQ+6FQJjgTKB4DoOJgtRyTLg3actwojSBY16HfN7leni7Nvf",
+	"fOKBn3jgJx4Y8EA54xdiz1xe/Op6ltUZYEvO+TKzQ9LwiY3dPqJoSHopvQFpd8SIit0yV4K+RVLmYDUE",
+	"qngueC7yR2Ux7R394c37N77D5n2oyplRqKOe1KImqlD5fqWMm51Bdd7hrRa4j6eE4Bm25S4aRS4HSWHA",
+	"RU3QpF2T5UafqUuRG8GqulAwXmelqwG5hO1Vj7c1+vtHrqopjIWKhBc5l9mgjrsvrtperlI36qCxkQ/Q",
+	"DvIlPN9MKrzZWi82LHGpm29b0xeiKp+jwohslrn0rb9LWhqmWjVYcMW6f4IQFVaVxWFznclEinBZ7Qtt",
+	"rb56Rlat8HH6ouXp5+DXEcYD2OKfM1HkMnHTkoalOvF4IjUIEdrWN+///wEA",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
