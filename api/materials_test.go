@@ -42,7 +42,7 @@ func TestStandardMaterials(t *testing.T) {
 	}
 	decode[oapi.StandardMaterial](t, e.postJSON(t, e.admin, "/v1/standard-materials", map[string]any{
 		"code": "CAL-NO3-L3", "kind": "calibration_level", "level": "L3", "prepared_from": "STOCK-NO3-1",
-		"expires_at": baseTime.Add(60 * 24 * time.Hour).Format(time.RFC3339),
+		"expires_at":  baseTime.Add(60 * 24 * time.Hour).Format(time.RFC3339),
 		"preparation": []map[string]any{{"aliquot_ml": 2.0, "aliquot_tol_ml": 0.01, "final_ml": 100.0, "final_tol_ml": 0.1}}}),
 		http.StatusCreated)
 
@@ -52,7 +52,7 @@ func TestStandardMaterials(t *testing.T) {
 		"tolerance": 0.1, "expires_at": expiry.Format(time.RFC3339)}), http.StatusConflict, "")
 	wantProblem(t, e.postJSON(t, e.admin, "/v1/standard-materials", map[string]any{
 		"code": "STOCK-X", "kind": "stock_solution", "prepared_from": "CRM-NO3-A", "value": 3.0,
-		"expires_at": expiry.Format(time.RFC3339),
+		"expires_at":  expiry.Format(time.RFC3339),
 		"preparation": []map[string]any{{"aliquot_ml": 1.0, "aliquot_tol_ml": 0.01, "final_ml": 10.0, "final_tol_ml": 0.02}}}),
 		http.StatusUnprocessableEntity, "/value")
 	// Reading needs results:read; recording needs admin.
