@@ -219,10 +219,23 @@ var jsonHTMLSafe = func() (t [utf8.RuneSelf]bool) {
 	return t
 }()
 
+// invalidUTF8 is what encoding/json writes for each byte of invalid UTF-8 in
+// a string: the escape \ufffd up to Go 1.26, the character U+FFFD itself
+// from Go 1.27 (whose encoding/json is built on encoding/json/v2). Both
+// decode to the same string; it is asked of the running encoding/json once,
+// so the fast path stays byte-identical to it under either toolchain.
+var invalidUTF8 = func() string {
+	b, err := json.Marshal("\xff")
+	if err != nil || len(b) < 2 {
+		return `\ufffd`
+	}
+	return string(b[1 : len(b)-1])
+}()
+
 // appendJSONString appends s quoted as encoding/json's Encoder does by
 // default: \" \\ \b \f \n \r \t, other control bytes and <, >, & as \u00XX,
 // U+2028 and U+2029 as \u2028 and \u2029, and each byte of invalid UTF-8
-// as \ufffd.
+// as invalidUTF8.
 func appendJSONString(b []byte, s string) []byte {
 	const hexDigits = "0123456789abcdef"
 	b = append(b, '"')
@@ -257,7 +270,7 @@ func appendJSONString(b []byte, s string) []byte {
 		r, size := utf8.DecodeRuneInString(s[i:])
 		if r == utf8.RuneError && size == 1 {
 			b = append(b, s[start:i]...)
-			b = append(b, `\ufffd`...)
+			b = append(b, invalidUTF8...)
 			i++
 			start = i
 			continue
