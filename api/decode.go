@@ -25,19 +25,24 @@ func (s *Server) registerDecodedRoutes(e *echo.Echo) {
 	e.POST(predictionRoute, s.postPredictions)
 }
 
+// decodeBody is the decode step: the body the fast path decoded, or nil
+// once the spec's validator has accepted a request the fast path did not
+// (the caller then decodes the body plainly).
+func decodeBody[T any](s *Server, c echo.Context, fast func(echo.Context) (*T, bool, error)) (*T, error) {
+	body, ok, err := fast(c)
+	if err != nil || ok {
+		return body, err
+	}
+	return nil, s.spec.validate(c)
+}
+
 // postRun is POST /v1/runs: decode, then CreateRun.
 func (s *Server) postRun(c echo.Context) error {
-	run, ok, err := runFastPath(c)
+	run, err := decodeBody(s, c, runFastPath)
 	if err != nil {
 		return err
 	}
-	if !ok {
-		if err := s.spec.validate(c); err != nil {
-			return err
-		}
-	}
-	w := &oapi.ServerInterfaceWrapper{Handler: decodedRun{s: s, run: run}}
-	return w.CreateRun(c)
+	return (&oapi.ServerInterfaceWrapper{Handler: decodedRun{s: s, run: run}}).CreateRun(c)
 }
 
 // decodedRun receives CreateRun's parameters from the generated wrapper,
@@ -71,17 +76,11 @@ func (d decodedRun) CreateRun(c echo.Context, params oapi.CreateRunParams) error
 // postPredictions is POST /v1/curves/{id}/predictions: decode, then
 // CreatePredictions.
 func (s *Server) postPredictions(c echo.Context) error {
-	body, ok, err := predictionFastPath(c)
+	body, err := decodeBody(s, c, predictionFastPath)
 	if err != nil {
 		return err
 	}
-	if !ok {
-		if err := s.spec.validate(c); err != nil {
-			return err
-		}
-	}
-	w := &oapi.ServerInterfaceWrapper{Handler: decodedPredictions{s: s, body: body}}
-	return w.CreatePredictions(c)
+	return (&oapi.ServerInterfaceWrapper{Handler: decodedPredictions{s: s, body: body}}).CreatePredictions(c)
 }
 
 // decodedPredictions is decodedRun for CreatePredictions.
