@@ -5,6 +5,7 @@ import (
 	"encoding/csv"
 	"net/http"
 	"strconv"
+	"strings"
 	"testing"
 
 	"github.com/samply/golang-fhir-models/fhir-models/fhir"
@@ -74,6 +75,50 @@ func TestRunResultsFormats(t *testing.T) {
 		got, err := strconv.ParseFloat(row[2], 64)
 		if err != nil || got != *js.Results[i].Concentration || row[3] != "mg/L" || row[11] != "photometer-7" {
 			t.Errorf("CSV row %d %q, want value %v mg/L from photometer-7", i, row, *js.Results[i].Concentration)
+		}
+	}
+
+	// HL7 v2.5.1 ORU^R01 (ER7): one message per sample; read back with a
+	// small reader (segments end with CR, fields split by |, components by ^,
+	// as HL7 v2.5.1 chapter 2 defines the encoding characters).
+	r = e.do(t, call{method: http.MethodGet, path: path, token: e.admin, header: map[string]string{"Accept": "x-application/hl7-v2+er7"}})
+	if r.status != http.StatusOK || r.header.Get("Content-Type") != "x-application/hl7-v2+er7" {
+		t.Fatalf("HL7: %s", r)
+	}
+	msg := string(r.body)
+	if !strings.HasSuffix(msg, "\r") || strings.Contains(msg, "\n") {
+		t.Fatalf("segments must end with CR and hold no LF: %q", msg)
+	}
+	var msh, obr, obx [][]string
+	for _, seg := range strings.Split(strings.TrimSuffix(msg, "\r"), "\r") {
+		f := strings.Split(seg, "|")
+		switch f[0] {
+		case "MSH":
+			msh = append(msh, f)
+		case "OBR":
+			obr = append(obr, f)
+		case "OBX":
+			obx = append(obx, f)
+		}
+	}
+	if len(msh) != 2 || len(obr) != 2 || len(obx) != 2 {
+		t.Fatalf("%d MSH, %d OBR, %d OBX; want one message with one OBX per sample: %q", len(msh), len(obr), len(obx), msg)
+	}
+	for i := range msh {
+		// MSH-9 (the 8th piece, MSH-1 being the separator) and MSH-12.
+		if msh[i][8] != "ORU^R01^ORU_R01" || msh[i][11] != "2.5.1" {
+			t.Errorf("message %d: MSH-9 %q, MSH-12 %q; want ORU^R01^ORU_R01, 2.5.1", i, msh[i][8], msh[i][11])
+		}
+		if obr[i][3] != js.Results[i].SampleID {
+			t.Errorf("message %d: OBR-3 %q, want the sample id %s", i, obr[i][3], js.Results[i].SampleID)
+		}
+		o := obx[i]
+		got, err := strconv.ParseFloat(o[5], 64)
+		if o[2] != "NM" || err != nil || got != *js.Results[i].Concentration {
+			t.Errorf("message %d: OBX-2 %q OBX-5 %q, want NM %v", i, o[2], o[5], *js.Results[i].Concentration)
+		}
+		if strings.Split(o[6], "^")[0] != "mg/L" || o[11] != "P" || o[18] != "photometer-7" {
+			t.Errorf("message %d: OBX-6 %q OBX-11 %q OBX-18 %q; want mg/L, P (provisional), photometer-7", i, o[6], o[11], o[18])
 		}
 	}
 }

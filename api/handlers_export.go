@@ -16,6 +16,7 @@ import (
 	"curvekeeper/calib"
 	"curvekeeper/export/csvout"
 	"curvekeeper/export/fhir"
+	"curvekeeper/export/hl7v2"
 	"curvekeeper/lab"
 )
 
@@ -23,6 +24,7 @@ import (
 const (
 	mediaFHIR = "application/fhir+json"
 	mediaCSV  = "text/csv"
+	mediaHL7  = "x-application/hl7-v2+er7"
 )
 
 type acceptKey struct{}
@@ -61,13 +63,20 @@ func preferred(ctx context.Context, offers ...string) string {
 // runResultsAs answers a run's results as FHIR or CSV (see the spec of
 // getRunResults); ok false when the caller asked for neither.
 func (s *Server) runResultsAs(ctx context.Context, runID string, results []lab.Result) (oapi.GetRunResultsResponseObject, bool, error) {
-	media := preferred(ctx, mediaFHIR, mediaCSV)
+	media := preferred(ctx, mediaFHIR, mediaCSV, mediaHL7)
 	if media == "" {
 		return nil, false, nil
 	}
 	run, err := s.lab.GetRun(ctx, runID)
 	if err != nil {
 		return nil, true, err
+	}
+	if media == mediaHL7 {
+		body, err := runResultsHL7(run, results)
+		if err != nil {
+			return nil, true, err
+		}
+		return oapi.GetRunResults200XApplicationHl7V2Er7Response{Body: bytes.NewReader(body), ContentLength: int64(len(body))}, true, nil
 	}
 	if media == mediaCSV {
 		rows := make([]csvout.Result, 0, len(results))
@@ -118,3 +127,55 @@ func (s *Server) runResultsAs(ctx context.Context, runID string, results []lab.R
 // fhirAnalyteSystem is the code system of the analyte names in
 // Observation.code: the lab's own names, not LOINC.
 const fhirAnalyteSystem = "urn:curvekeeper:analyte"
+
+// runResultsHL7 encodes one ORU^R01 per sample of results, in the order of
+// the samples' first results, stamped with the latest result's creation
+// time (never the clock) and controlled by the run and the sample's first
+// result id.
+func runResultsHL7(run *lab.Run, results []lab.Result) ([]byte, error) {
+	var (
+		order  []string
+		bySamp = map[string][]lab.Result{}
+		latest time.Time
+	)
+	for _, r := range results {
+		if _, ok := bySamp[r.SampleID]; !ok {
+			order = append(order, r.SampleID)
+		}
+		bySamp[r.SampleID] = append(bySamp[r.SampleID], r)
+		if r.CreatedAt.After(latest) {
+			latest = r.CreatedAt
+		}
+	}
+	var out []byte
+	for _, id := range order {
+		rs := bySamp[id]
+		m := hl7v2.Message{SendingApplication: "curvekeeper", Time: latest,
+			ControlID: fmt.Sprintf("%s-%d", run.ID[:8], rs[0].ID),
+			Order:     hl7v2.Order{FillerNumber: id, ServiceCode: run.Method, ServiceText: run.Method, ServiceSystem: "L", ObservedAt: rs[0].AcquiredAt}}
+		for _, r := range rs {
+			obx := hl7v2.Result{Code: r.Analyte, Text: r.Analyte, System: "L", UnitCode: r.Unit,
+				ReleaseState: r.ReleaseState, ObservedAt: r.AcquiredAt, MethodCode: run.Method,
+				MethodText: fmt.Sprintf("%s revision %d", run.Method, run.MethodRevision), Equipment: run.Instrument}
+			if r.Concentration == nil {
+				continue // no value to send; the JSON shows why
+			}
+			// The flags speak of the calibration (range, LOQ), not of a
+			// reference range, so they go to a note, not to OBX-8.
+			if len(r.Flags) > 0 {
+				obx.Notes = append(obx.Notes, "Calibration flags: "+strings.Join(r.Flags, ", ")+".")
+			}
+			obx.Value = *r.Concentration
+			m.Results = append(m.Results, obx)
+		}
+		if len(m.Results) == 0 {
+			continue
+		}
+		b, err := hl7v2.Encode(m)
+		if err != nil {
+			return nil, fmt.Errorf("api: hl7 v2: %w", err)
+		}
+		out = append(out, b...)
+	}
+	return out, nil
+}
