@@ -54,6 +54,18 @@ func (s *Service) Ingest(ctx context.Context, p Principal, in RunInput) (*RunCre
 		return nil, err
 	}
 	addDriftChecks(m, reads.Slopes, curves)
+	if len(in.Materials) > 0 {
+		if err := checkMaterialCodes(in.Materials); err != nil {
+			return nil, err
+		}
+		lineage, err := s.store.MaterialLineage(ctx, in.Materials)
+		if err != nil {
+			return nil, err
+		}
+		if err := addStandardsChecks(m, &in, lineage, curves); err != nil {
+			return nil, err
+		}
+	}
 	in.MethodRevision = m.Revision
 	in.TokenID, in.Actor = p.TokenID, p.Actor()
 	return s.store.CreateRun(ctx, in, curves)

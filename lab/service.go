@@ -46,12 +46,15 @@ type Reader interface {
 	Ping(ctx context.Context) error
 	CheckSchema(ctx context.Context) error
 	RunWriteStats() RunWriteStats
+	GetMaterial(ctx context.Context, code string) (*Material, error)
+	ListMaterials(ctx context.Context) ([]Material, error)
 }
 
 // Writer is what the lab writes; each write is one transaction with its
 // audit row, and the Service's methods apply the rules around it.
 type Writer interface {
 	RunStore
+	MaterialStore
 	CreateMethod(ctx context.Context, in MethodInput, actor string) (m *Method, created bool, err error)
 	CreateToken(ctx context.Context, name string, scopes []string, actor string) (id, secret string, err error)
 	RevokeToken(ctx context.Context, id, actor string) error

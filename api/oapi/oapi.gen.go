@@ -37,6 +37,7 @@ const (
 	CheckRSquared              CheckName = "r_squared"
 	CheckRelativeStandardError CheckName = "relative_standard_error"
 	CheckResidualRuns          CheckName = "residual_runs"
+	CheckStandardsInDate       CheckName = "standards_in_date"
 )
 
 // Valid indicates whether the value is a known member of the CheckName enum.
@@ -65,6 +66,8 @@ func (e CheckName) Valid() bool {
 	case CheckRelativeStandardError:
 		return true
 	case CheckResidualRuns:
+		return true
+	case CheckStandardsInDate:
 		return true
 	default:
 		return false
@@ -152,6 +155,39 @@ func (e HealthStatus) Valid() bool {
 	case HealthOK:
 		return true
 	case HealthReady:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for MethodExpiredStandards.
+const (
+	MethodExpiredStandardsAdvisory MethodExpiredStandards = "advisory"
+)
+
+// Valid indicates whether the value is a known member of the MethodExpiredStandards enum.
+func (e MethodExpiredStandards) Valid() bool {
+	switch e {
+	case MethodExpiredStandardsAdvisory:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for MethodRequestExpiredStandards.
+const (
+	MethodRequestExpiredStandardsAdvisory  MethodRequestExpiredStandards = "advisory"
+	MethodRequestExpiredStandardsMandatory MethodRequestExpiredStandards = "mandatory"
+)
+
+// Valid indicates whether the value is a known member of the MethodRequestExpiredStandards enum.
+func (e MethodRequestExpiredStandards) Valid() bool {
+	switch e {
+	case MethodRequestExpiredStandardsAdvisory:
+		return true
+	case MethodRequestExpiredStandardsMandatory:
 		return true
 	default:
 		return false
@@ -329,6 +365,27 @@ func (e SigmaBasis) Valid() bool {
 	case SigmaBasisLowestLevelSd:
 		return true
 	case SigmaBasisResidualSd:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for StandardMaterialKind.
+const (
+	MaterialLevel     StandardMaterialKind = "calibration_level"
+	MaterialReference StandardMaterialKind = "reference_material"
+	MaterialStock     StandardMaterialKind = "stock_solution"
+)
+
+// Valid indicates whether the value is a known member of the StandardMaterialKind enum.
+func (e StandardMaterialKind) Valid() bool {
+	switch e {
+	case MaterialLevel:
+		return true
+	case MaterialReference:
+		return true
+	case MaterialStock:
 		return true
 	default:
 		return false
@@ -551,6 +608,9 @@ type Check struct {
 	// `GET /v1/trends`). It is advisory unless the method lists it as
 	// mandatory, and it is left out when fewer than 10 approved curves
 	// exist, unless it is mandatory (then it is reported as not computed).
+	// `standards_in_date` is computed at ingest when the run names its
+	// standard materials; the method's `expired_standards` makes it
+	// mandatory (the default) or advisory, not this list.
 	Name   CheckName `json:"name"`
 	Passed bool      `json:"passed"`
 
@@ -571,6 +631,9 @@ type Check struct {
 // `GET /v1/trends`). It is advisory unless the method lists it as
 // mandatory, and it is left out when fewer than 10 approved curves
 // exist, unless it is mandatory (then it is reported as not computed).
+// `standards_in_date` is computed at ingest when the run names its
+// standard materials; the method's `expired_standards` makes it
+// mandatory (the default) or advisory, not this list.
 type CheckName string
 
 // Concentration A nominal concentration, in the analyte's unit.
@@ -962,6 +1025,9 @@ type Method struct {
 	// Description Empty when none was given.
 	Description string `json:"description"`
 
+	// ExpiredStandards Present, as `advisory`, only when the method makes the standards check advisory.
+	ExpiredStandards *MethodExpiredStandards `json:"expired_standards,omitempty"`
+
 	// MaxCurveAgeHours Null when curves do not expire.
 	MaxCurveAgeHours *float64 `json:"max_curve_age_hours"`
 
@@ -989,6 +1055,9 @@ type Method struct {
 	WeightingOptions WeightingOptions `json:"weighting_options"`
 }
 
+// MethodExpiredStandards Present, as `advisory`, only when the method makes the standards check advisory.
+type MethodExpiredStandards string
+
 // MethodList defines model for MethodList.
 type MethodList struct {
 	Methods []Method `json:"methods"`
@@ -1005,6 +1074,10 @@ type MethodRequest struct {
 
 	// Description Free text for people; no control characters except tab, line feed and carriage return.
 	Description *Text `json:"description,omitempty"`
+
+	// ExpiredStandards Whether a curve whose run used an out-of-date standard material
+	// fails (`mandatory`, the default) or only reports it (`advisory`).
+	ExpiredStandards *MethodRequestExpiredStandards `json:"expired_standards,omitempty"`
 
 	// MaxCurveAgeHours How long after acquisition a curve stays in force; no limit when absent.
 	MaxCurveAgeHours *float64 `json:"max_curve_age_hours,omitempty"`
@@ -1035,6 +1108,10 @@ type MethodRequest struct {
 	// WeightingOptions A method's weighting options; a field left out takes its default.
 	WeightingOptions *WeightingOptionsInput `json:"weighting_options,omitempty"`
 }
+
+// MethodRequestExpiredStandards Whether a curve whose run used an out-of-date standard material
+// fails (`mandatory`, the default) or only reports it (`advisory`).
+type MethodRequestExpiredStandards string
 
 // Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 // y = b0 + b1·x + b2·x² (ISO 8466-2).
@@ -1112,6 +1189,14 @@ type PredictionSample struct {
 
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
+}
+
+// PreparationStep An aliquot of the parent made up to a final volume, each volume in mL with its tolerance ± (rectangular).
+type PreparationStep struct {
+	AliquotMl    float64 `json:"aliquot_ml"`
+	AliquotTolMl float64 `json:"aliquot_tol_ml"`
+	FinalMl      float64 `json:"final_ml"`
+	FinalTolMl   float64 `json:"final_tol_ml"`
 }
 
 // Problem RFC 9457 problem details.
@@ -1313,9 +1398,12 @@ type Run struct {
 	MethodRevision int        `json:"method_revision"`
 
 	// Operator Null when none was given.
-	Operator  *string     `json:"operator"`
-	Samples   []RunSample `json:"samples"`
-	Standards []Standard  `json:"standards"`
+	Operator *string     `json:"operator"`
+	Samples  []RunSample `json:"samples"`
+
+	// StandardMaterials The standard materials the run named; absent when none.
+	StandardMaterials *[]string  `json:"standard_materials,omitempty"`
+	Standards         []Standard `json:"standards"`
 }
 
 // RunFormat The content type the run was posted in.
@@ -1360,6 +1448,14 @@ type RunRequest struct {
 	// Operator Who ran the instrument; an identifier that may also hold `@`.
 	Operator *Operator         `json:"operator,omitempty"`
 	Samples  *[]RunSampleInput `json:"samples,omitempty"`
+
+	// StandardMaterials Codes of the standard materials the run's standards were made
+	// from (see /v1/standard-materials). Each curve of a material's
+	// analyte gets the check `standards_in_date`: every material and
+	// every material it was prepared from within its expiry at
+	// `acquired_at`, and prepared before its parent expired. The check
+	// is mandatory unless the method makes it advisory.
+	StandardMaterials *[]Identifier `json:"standard_materials,omitempty"`
 
 	// Standards One entry per analyte and level.
 	Standards []StandardInput `json:"standards"`
@@ -1499,6 +1595,72 @@ type StandardInput struct {
 
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
+}
+
+// StandardMaterial defines model for StandardMaterial.
+type StandardMaterial struct {
+	Analyte             string               `json:"analyte"`
+	Code                string               `json:"code"`
+	CoverageFactor      *float64             `json:"coverage_factor,omitempty"`
+	CreatedAt           time.Time            `json:"created_at"`
+	CreatedBy           string               `json:"created_by"`
+	ExpandedUncertainty *float64             `json:"expanded_uncertainty,omitempty"`
+	ExpiresAt           time.Time            `json:"expires_at"`
+	Kind                StandardMaterialKind `json:"kind"`
+	Level               *string              `json:"level,omitempty"`
+	Lot                 string               `json:"lot"`
+	Preparation         []PreparationStep    `json:"preparation"`
+	PreparedAt          *time.Time           `json:"prepared_at,omitempty"`
+	PreparedFrom        *string              `json:"prepared_from,omitempty"`
+
+	// RelativeUncertainty u(value)/value from the certificate and the preparation.
+	RelativeUncertainty float64  `json:"relative_uncertainty"`
+	Supplier            string   `json:"supplier"`
+	Tolerance           *float64 `json:"tolerance,omitempty"`
+	Unit                string   `json:"unit"`
+	Value               float64  `json:"value"`
+}
+
+// StandardMaterialKind defines model for StandardMaterialKind.
+type StandardMaterialKind string
+
+// StandardMaterialList defines model for StandardMaterialList.
+type StandardMaterialList struct {
+	Materials []StandardMaterial `json:"materials"`
+}
+
+// StandardMaterialRequest defines model for StandardMaterialRequest.
+type StandardMaterialRequest struct {
+	// Analyte Required unless prepared; a prepared material takes its parent's.
+	Analyte *Identifier `json:"analyte,omitempty"`
+
+	// Code A name of an instrument, analyte, method, level or sample.
+	Code           Identifier `json:"code"`
+	CoverageFactor *float64   `json:"coverage_factor,omitempty"`
+
+	// ExpandedUncertainty The certificate's expanded uncertainty U, with coverage_factor.
+	ExpandedUncertainty *float64             `json:"expanded_uncertainty,omitempty"`
+	ExpiresAt           time.Time            `json:"expires_at"`
+	Kind                StandardMaterialKind `json:"kind"`
+
+	// Level The calibration level this material is (calibration_level only).
+	Level       *Identifier        `json:"level,omitempty"`
+	Lot         *string            `json:"lot,omitempty"`
+	Preparation *[]PreparationStep `json:"preparation,omitempty"`
+	PreparedAt  *time.Time         `json:"prepared_at,omitempty"`
+
+	// PreparedFrom A name of an instrument, analyte, method, level or sample.
+	PreparedFrom *Identifier `json:"prepared_from,omitempty"`
+	Supplier     *string     `json:"supplier,omitempty"`
+
+	// Tolerance The certificate's tolerance ± a, instead of U and k.
+	Tolerance *float64 `json:"tolerance,omitempty"`
+
+	// Unit Required unless prepared; a prepared material takes its parent's.
+	Unit *Unit `json:"unit,omitempty"`
+
+	// Value The certificate value; left out for a prepared material.
+	Value *float64 `json:"value,omitempty"`
 }
 
 // Text Free text for people; no control characters except tab, line feed and carriage return.
@@ -1922,6 +2084,9 @@ type CreateRunJSONRequestBody = RunRequest
 // CreateRunSamplesJSONRequestBody defines body for CreateRunSamples for application/json ContentType.
 type CreateRunSamplesJSONRequestBody = SamplesRequest
 
+// CreateStandardMaterialJSONRequestBody defines body for CreateStandardMaterial for application/json ContentType.
+type CreateStandardMaterialJSONRequestBody = StandardMaterialRequest
+
 // CreateTokenJSONRequestBody defines body for CreateToken for application/json ContentType.
 type CreateTokenJSONRequestBody = TokenRequest
 
@@ -2002,6 +2167,15 @@ type ServerInterface interface {
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx echo.Context, sampleID Identifier) error
+	// ListStandardMaterials All standard materials
+	// (GET /v1/standard-materials)
+	ListStandardMaterials(ctx echo.Context) error
+	// CreateStandardMaterial Record a standard material
+	// (POST /v1/standard-materials)
+	CreateStandardMaterial(ctx echo.Context) error
+	// GetStandardMaterial One standard material
+	// (GET /v1/standard-materials/{code})
+	GetStandardMaterial(ctx echo.Context, code Identifier) error
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx echo.Context) error
@@ -2511,6 +2685,40 @@ func (w *ServerInterfaceWrapper) GetSampleResults(ctx echo.Context) error {
 	return err
 }
 
+// ListStandardMaterials converts echo context to params.
+func (w *ServerInterfaceWrapper) ListStandardMaterials(ctx echo.Context) error {
+	var err error
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListStandardMaterials(ctx)
+	return err
+}
+
+// CreateStandardMaterial converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateStandardMaterial(ctx echo.Context) error {
+	var err error
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateStandardMaterial(ctx)
+	return err
+}
+
+// GetStandardMaterial converts echo context to params.
+func (w *ServerInterfaceWrapper) GetStandardMaterial(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "code" -------------
+	var code Identifier
+
+	err = runtime.BindStyledParameterWithOptions("simple", "code", ctx.Param("code"), &code, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter code: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetStandardMaterial(ctx, code)
+	return err
+}
+
 // CreateToken converts echo context to params.
 func (w *ServerInterfaceWrapper) CreateToken(ctx echo.Context) error {
 	var err error
@@ -2716,6 +2924,9 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/methods", wrapper.ListMethods, options.OperationMiddlewares["listMethods"]...)
 	router.POST(options.BaseURL+"/v1/methods", wrapper.CreateMethod, options.OperationMiddlewares["createMethod"]...)
 	router.GET(options.BaseURL+"/v1/methods/:name", wrapper.GetMethod, options.OperationMiddlewares["getMethod"]...)
+	router.GET(options.BaseURL+"/v1/standard-materials", wrapper.ListStandardMaterials, options.OperationMiddlewares["listStandardMaterials"]...)
+	router.POST(options.BaseURL+"/v1/standard-materials", wrapper.CreateStandardMaterial, options.OperationMiddlewares["createStandardMaterial"]...)
+	router.GET(options.BaseURL+"/v1/standard-materials/:code", wrapper.GetStandardMaterial, options.OperationMiddlewares["getStandardMaterial"]...)
 	router.POST(options.BaseURL+"/v1/tokens", wrapper.CreateToken, options.OperationMiddlewares["createToken"]...)
 	router.DELETE(options.BaseURL+"/v1/tokens/:id", wrapper.DeleteToken, options.OperationMiddlewares["deleteToken"]...)
 
@@ -5834,6 +6045,20 @@ type GetRunResultsResponseObject interface {
 	VisitGetRunResultsResponse(w http.ResponseWriter) error
 }
 
+type GetRunResults200ApplicationFhirPlusJSONResponse map[string]interface{}
+
+func (response GetRunResults200ApplicationFhirPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/fhir+json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type GetRunResults200JSONResponse RunResults
 
 func (response GetRunResults200JSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
@@ -5845,6 +6070,46 @@ func (response GetRunResults200JSONResponse) VisitGetRunResultsResponse(w http.R
 	w.Header().Set("Content-Type", "application/json")
 	w.WriteHeader(200)
 	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults200TextCsvResponse struct {
+	Body          io.Reader
+	ContentLength int64
+}
+
+func (response GetRunResults200TextCsvResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	w.Header().Set("Content-Type", "text/csv")
+	if response.ContentLength != 0 {
+		w.Header().Set("Content-Length", fmt.Sprint(response.ContentLength))
+	}
+	w.WriteHeader(200)
+
+	if closer, ok := response.Body.(io.ReadCloser); ok {
+		defer closer.Close()
+	}
+	_, err := io.Copy(w, response.Body)
+	return err
+}
+
+type GetRunResults200XApplicationHl7V2Er7Response struct {
+	Body          io.Reader
+	ContentLength int64
+}
+
+func (response GetRunResults200XApplicationHl7V2Er7Response) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	w.Header().Set("Content-Type", "x-application/hl7-v2+er7")
+	if response.ContentLength != 0 {
+		w.Header().Set("Content-Length", fmt.Sprint(response.ContentLength))
+	}
+	w.WriteHeader(200)
+
+	if closer, ok := response.Body.(io.ReadCloser); ok {
+		defer closer.Close()
+	}
+	_, err := io.Copy(w, response.Body)
 	return err
 }
 
@@ -6290,6 +6555,456 @@ type GetSampleResults503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterialsRequestObject struct {
+}
+
+type ListStandardMaterialsResponseObject interface {
+	VisitListStandardMaterialsResponse(w http.ResponseWriter) error
+}
+
+type ListStandardMaterials200JSONResponse StandardMaterialList
+
+func (response ListStandardMaterials200JSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials400ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials401ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials403ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials429ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials500ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials503ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterialRequestObject struct {
+	Body *CreateStandardMaterialJSONRequestBody
+}
+
+type CreateStandardMaterialResponseObject interface {
+	VisitCreateStandardMaterialResponse(w http.ResponseWriter) error
+}
+
+type CreateStandardMaterial201ResponseHeaders struct {
+	Location string
+}
+
+type CreateStandardMaterial201JSONResponse struct {
+	Body    StandardMaterial
+	Headers CreateStandardMaterial201ResponseHeaders
+}
+
+func (response CreateStandardMaterial201JSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.Header().Set("Location", fmt.Sprint(response.Headers.Location))
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial400ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial401ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial403ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial409ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial413ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial415ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial422ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial429ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial500ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial503ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterialRequestObject struct {
+	Code Identifier `json:"code"`
+}
+
+type GetStandardMaterialResponseObject interface {
+	VisitGetStandardMaterialResponse(w http.ResponseWriter) error
+}
+
+type GetStandardMaterial200JSONResponse StandardMaterial
+
+func (response GetStandardMaterial200JSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial400ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial401ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial403ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial404ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial429ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial500ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial503ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -6927,6 +7642,15 @@ type StrictServerInterface interface {
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx context.Context, request GetSampleResultsRequestObject) (GetSampleResultsResponseObject, error)
+	// ListStandardMaterials All standard materials
+	// (GET /v1/standard-materials)
+	ListStandardMaterials(ctx context.Context, request ListStandardMaterialsRequestObject) (ListStandardMaterialsResponseObject, error)
+	// CreateStandardMaterial Record a standard material
+	// (POST /v1/standard-materials)
+	CreateStandardMaterial(ctx context.Context, request CreateStandardMaterialRequestObject) (CreateStandardMaterialResponseObject, error)
+	// GetStandardMaterial One standard material
+	// (GET /v1/standard-materials/{code})
+	GetStandardMaterial(ctx context.Context, request GetStandardMaterialRequestObject) (GetStandardMaterialResponseObject, error)
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx context.Context, request CreateTokenRequestObject) (CreateTokenResponseObject, error)
@@ -7757,6 +8481,100 @@ func (sh *strictHandler) GetSampleResults(ctx echo.Context, sampleID Identifier)
 	return nil
 }
 
+// ListStandardMaterials operation middleware
+func (sh *strictHandler) ListStandardMaterials(ctx echo.Context) error {
+	var request ListStandardMaterialsRequestObject
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListStandardMaterials(ctx.Request().Context(), request.(ListStandardMaterialsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListStandardMaterials")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListStandardMaterialsResponseObject); ok {
+		return validResponse.VisitListStandardMaterialsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateStandardMaterial operation middleware
+func (sh *strictHandler) CreateStandardMaterial(ctx echo.Context) error {
+	var request CreateStandardMaterialRequestObject
+
+	var body CreateStandardMaterialJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateStandardMaterial(ctx.Request().Context(), request.(CreateStandardMaterialRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateStandardMaterial")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateStandardMaterialResponseObject); ok {
+		return validResponse.VisitCreateStandardMaterialResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetStandardMaterial operation middleware
+func (sh *strictHandler) GetStandardMaterial(ctx echo.Context, code Identifier) error {
+	var request GetStandardMaterialRequestObject
+
+	request.Code = code
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetStandardMaterial(ctx.Request().Context(), request.(GetStandardMaterialRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetStandardMaterial")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetStandardMaterialResponseObject); ok {
+		return validResponse.VisitGetStandardMaterialResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // CreateToken operation middleware
 func (sh *strictHandler) CreateToken(ctx echo.Context) error {
 	var request CreateTokenRequestObject
@@ -7883,370 +8701,403 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L3dcxtHli/4r+Syp8OguwiBFGVbZEzElfUxrduypSZle+42NKhkVYLIUSETqswiiba1cTfm5d7XfdmI",
-	"fd2P95mIjYmNffO+7/wN23/JxjknMyurUAALFCm756oj2iKAqvzO8/k75/y4k+n5QiuhrNk5+nFnJngu",
-	"SvzzRNhy+WhqRQmfcmGyUi6s1GrnaOdUZFrlhlnNLrm07ExMdSlYCa9IdT7cSXZK8a6Spch3jmxZiWTH",
-	"ZDMx59DUXCo5r+Y7R6Nkxy4XYudoRyorzkW58/79+2RnwUs+F9YN43FVXojnT1bH8HomWAY/fmaYzKFL",
-	"CV8vuJ3tJDuKz7HhfONQ/qYU052jnd/cq1fhHv1q7n333fMnOzCe57mYL7QVKlv+QSxXB/KIZYUUyu5l",
-	"M22EYm/Fkg04g/eZNIyzc61zls20zMQuszNu2Zy/FfALLJgU+VjBEIWxzPCpOGZGCGZngumFKDn08plh",
-	"UZ/DsfKzpf2q5xuNdQ8G21h3fvVCqHM72znaP/gqgX0In2HVrRUltPkPf3q099/zvT+P9h4OJ0d7b37c",
-	"T/YPvnr/Nzthu4wtpTqnxVHGltVcKNu9QzL8zmQulJVTKcqEccMW2liRs0tpZ0xaw8pKmXW7WHdy0918",
-	"HjrHYZ9Uat2ZKit1tyfqPbxvFloZgSf8a56f0PbDp0wr61aTLxaFzPAA3FuU+qwQ89/9o4GB/tizx1f0",
-	"FnXanOo3vJjqci5yZpbK8quEXZZanTPYYqZLxtkFLyrBdGWNzOk8UrNHbO7fHav/ePry24RxRkeCXc5E",
-	"KRhnqpqfiZKdiUKrc5Mwrlil3ip9qdhUiiKHV9yJY7ocq5Krc8EupC64Ffjru0qUSxZoAd2bXAvDlLYM",
-	"lmYJ9+B9svNYq2khs4+6enhQhNFVmQH9MZZbwaa6PJNAFfFHutADTkSKleJCikuRM16UgufLhPGxop/g",
-	"CujKMs6m0iaMh5fhB1p4PhdM1ncbaYyxsiiYVGOY/vnM7rr1eIbDyIX62Ati9VuhWMGzt4aJC9g+k+mF",
-	"YIXEmy4VS6/2/NXZw99MOtxBKgIngRdPy1KXH3PYvmMmoOchg2mc6XzJDF8aplWxZOMd2XhovMO4yhub",
-	"DMTifbLzrbbPdKXyj73uQJnycBzrSyKupLE4sld8WWiev9b6BS/PxcceIK6ouMqEcLfDiPJClJ8Zlmk1",
-	"ledVKXJWyLmk0Z6K8kJm4jvFL7gs+Fnx0Qecc8vPuBEs4wpW8gz2mmczkTOlL5MwB5kJYPFmVlkL5C/X",
-	"lypBgjaYIg29LKVFpi8NskKuMjd7Ay3m7oydiYxXRiAfDH1LM1ZAWLnKz5bE89vi2V6Qz7om656+F0ly",
-	"ON/XWn/D1dIxHfOLkInPTLg9JdBOaZi+ECWugDsJtzXd7xSv7EyX8s/io17Nb6QxUp0nNbtMAhPUJTAE",
-	"/Vbk7EzwUpS0Kq1J//DDD3uPKjsTysIoxarAkn6Nb6fEKrhiKdKolHFrS3lWWcEGJ88esy++fDDa3SyW",
-	"t2U7WrpFqTNhDFzCp8pKu/yYK/iDKIo9J6VItagsSQFnpeBvUXyuCsH0NL6Ox24FTIpk0TC4tmOlp1Oh",
-	"criiKH7UFLwqhGOb3ylTLRa6tCL/RuSSv8b1+NgiBV6Jzwx7TL3uwSjgcgAV0qqlFjCeZWJhzRBlWtcH",
-	"DOERfg/E5jksG449zyW8w4tXJTRgpTA7R1NeGNEeSf02s7NSmJkucnOMK4ljKMTUglzILKoxMCShzqUS",
-	"qKZMeVVYNjAzEvaKgli/VvjgXNiZzvEoLqJx/LhzxrO3k4wX2aTQlxOrC1HCCCYLEuzEVVZURl6Ib7z2",
-	"SOcXTge3O0c7ua6AUSSg5tAD+6NR0qVskmwKW173OZdqsuDGTKYlz2gZftzYdu+WP85MZnquTSZybqzM",
-	"pF1OeLGYXXsaH+FD7xOScGDTt3wPZL2Jnk6mcts351zl3OqyQ59+PBMgQV6CNs2mXBZVSf/SUbsQZS4z",
-	"e4wftJ2J0jAOSkd+IY0ul6i3WTE3140F+/mWzwWN5+o5vbRfry8vSw46dKXku0q432G33AREsfWsryal",
-	"udujAEe5EBeiME7pp0cfxO8drFpe6MVyYt5VvCRG+QHnX1e2kKKcZFq/NZP8zibr+zG2QgX/z+Lu+ior",
-	"Zbbc7wtRyqnjGKuUoHnsf/rtk59A645eIeGPlzkbPH/8/b3Hj7/fZXO+ZEBbGT/nUoHyYc1YKT2XoKGg",
-	"zj5kTxwVPhgljIMkxL47ZU9fPWKnP+x9dfgF+wapMPtqNBo9GauMF/LMcZS4e7piBT/TJV7Vz4wj38wI",
-	"a6Bjpi+dNeoOVvx9+Eaf/aPILCxozZpe6UJmyy0521PUSgNTA7401WUmEs+3TM2xtmZRq1P9cIazDWPp",
-	"8fZ6NtHj5Q4m0eOtThbR470Gg9ienjcoeAe57jWCBrHu80aD9N6IwvahpFu81aKLPd5sUrkeL2xD40DG",
-	"JTpXFBqMYaAld1I8wwZ5RMTWky8UJa8d5vtY8/lTvFGto9F1YNfem/XXMdlILDYTgvY5aZ7E1XvY2LPu",
-	"rV89RvEF27iHb7qosD8ebUeIkecKGwLdARd4uLORB4yGD2IeMByNRvsdZ+yR4sXSimupfZNek8W+v18A",
-	"BT17rRUfnmkfKOzKvd+5YlUu7dMLr0f2n0PNHFqqMSjCl9ywXCuRMDE8H7K0rNQwKwW3Ik8TlqJ1eTiV",
-	"tvGZLxalvoi/KQUMU+TpcNXFk8AIdIcLEAit173J8Iu6OYeGuttpUVFuxZ6Vc9H1bC4sl0U3/Vjw0sqs",
-	"KnhpEiZVVlSo13NvYS/RtMSNVsNOj1W8bdzu+AkmO+H6ud7X7uMLfb7lLooL72Dtxcmi07LCylozcC13",
-	"jfUxr2B4Zs3hIQO2AQoLXkqVOzPDkbMq4B32QmZkp3VkeayyUlpRSs6mpZ6zRXVWSAMW0vNK5vByh/jI",
-	"s6wUubRIaBJwe55XBfyI/Tvh8vTlK7QssEUpMpELbIo2l50t0TXEC7iyOVuI0mg1VsH/XAhuhPOP+pVe",
-	"OV1zqbyutyoooBSx5fbCFlZW5Ksr/QweB68YWT8yaJxluipy5uzK/l1cLcVS4AUiT2EzsC9cmZSOZEpu",
-	"icvZMjraZ1oXgqvmtVmZM9pUuy9UJA7jUYARAeNBm+IxU1VRtGcw43BUFDoKL/FvGybSTfGhFbLkk16w",
-	"Wd5rH1cBan5kP3IOdDSr04hykXkvZTAQoHHgUhrhJhZbCFYXrw+3aIiYtFPRakeNkSumcyqlCJZHunW2",
-	"tpplei7wOnVSUAP3BiSQNfuIAAL/DGzNXHCDdxbVwngrP3jDuvlfPUJ/4sIyJfUtacoebqk2kt163bvQ",
-	"F/CjZ0UR7VqghnjE0lraA55H4l6ajFUaiXrwS1vKg++CoAZ0SmoF3wXRDBspBfxyISZedJ2QCT5haZDU",
-	"8C1hZF7xYgLSGnzhRDKDrcy10lYrmcEveSmnNh2y6Fs2CGsGRNAdmF3mNgFNY96fbDUQFjg3mS2WLDRC",
-	"HhZYpUtdvgWmiW73oe8QPU5+lxi3TKpzYewRvqLEZYDbmEIvat5A15IrPM2nT4JBHn3WNfwDfuUkx31m",
-	"2MGIzbWxDEi8smPlpRLqwyS17/sHYew52EBITMGLY9jACDFW6d89fc3uXezfs6VQuUl3h+x546qzShXC",
-	"mJh0FNKg8YJxM1ZhURN3F+HlYN/GqzIFmQKEG8X2R6w1zrFCJ2vi+6EG6q0aIFGnb0tB3gXWIpi7zoKi",
-	"qvka3aSplXToI7FG4Q7qTrITqxBrTmmsTuBT0RmttQYciT9FcFPhuEQX1ZGoZOdqD2axd8FLdL7AdPDq",
-	"fgNQIzcl+sLPCz+94Nnbl9Nn0vovfr86P/z+a569fdyYI359chrmSZ/dZE/dXJ+6qeKPz6P5uqdp0ic0",
-	"Z/zuZT1xGm80e/ziCS0BwU/gCJP9rIs+edtcFj8IoisRrHAlKiVtNy2OTWb1/64xVwIsRqL01MEuLvWe",
-	"kTkc4/AU6Wtwe/FEXPDCJGw0fADkZDR8+PDhtarcw4cPG8rcg+5R2VIXL4A5mC2td6czcTnjJUqj0Ag5",
-	"ig0bPD99yb786svR3sGuZ3IBUgOu9EIqMezgaV2q1mQmz2c9TR/ujUJf9nwB91/0fPiSl0qq820G5F/p",
-	"O6IWF3fDa7bTGkhj1klj0To5N23VSVV08u6auIM4NAgfhWW8GCbscSHVkD2eifmQHXzJBvsPv9rfZYcP",
-	"7+8esXR/78CkY5RDCat2JpZa5eznfz4APjRw4949hkfvmxSdl+GZ++z0yTFLD6ARZi81sD5lRFYB5fCP",
-	"BUaGLeJ5O2bpyd4hvcOiVxJofqz4mb4Q7Hf4vPcyoyCKYLhL9pf/8j8dUM+He/smZVNdlWy157EKXe/H",
-	"Xe+PrlJmhWq84nyr+DSC9fQ0cOUmc4El20l2YDl2kp0D+gTT2Ul2YDzw2+iqJ2mHTd2nFuCv+/6vg/Dd",
-	"yaH/63A/PAftw8moStNlWHi54O8qAQg3IyywWaNLNoBr/MVhVdZXewGUQ52j/S+Ctj7YP+gFbZ3svfnd",
-	"33RJ2Qg43tZjzsjKQlLBkP3g1aVScBikaep87mEwlxQFSH+ZFtOpzKRQFkXDJpM2KSmBmb7gpQTZNkWP",
-	"p5gv7DIhyY9utCEjjBLQOnSDzwHZS1jq9CJULVPwp6aJaxcdrqhcjhUol3hk2sSRyMSE206txk23UqgP",
-	"+qebLGOTxYfXFr6V37LIkLFRO/PPwTs4p+18B11+g3hnVif+XLG5zkWxJ95VZL/WZS7KIwYch5fsT2ej",
-	"hJ3tv0ncFxNdynOp2J/wu3cVz0sOupp7LmFnB28a/ut+bgpnzbjfNfz1QsDjDtYPm3hGknoOn71iGkSC",
-	"Xtb2ZKc+ql39+t/YnNtSXvmO47VOmPn5XwZ////9n//5h7/f/cv/+H///H8lrNSXBsSm6Dla78aS3dra",
-	"bV5YMrNuvg4O3stNuPEqZ8bqrW5GPl3twYusLBfnpRAGVnBaCpHrecIU8Bi2iEwIkQuKgDqTC1GaTnEV",
-	"oyoifzA9T2QlqIYwN4Qqk9kZn7+3PxwNR90mZOcc1uq6a/g0PPg+2ZkW/Nx0mdQyaxg/QwASDYSG50xA",
-	"SnsLUG8kyDNpnxX8vOv+zwS/kMJYUsmuawiVnNMZL9FAJPN+EQFJHODQabwLPsXmUjyRxkqVWbq/xqsU",
-	"U9IjNsXZOPPMtSvj5HS4Dag9dw6PfpqAiXb9oaKHmH+o+34Ab28Mfb9r6Ehyrxv5N/jQ+2RHdV0fx5Xr",
-	"BWMDPKSgEmklvIJeKdTPr13MhZad/IHwBgHF4aSBxE9Xl8z3mrDzUlcLwIMuHTmWiviokTVn6Q9ugqV9",
-	"BcPqOtUNJ3QbcwmxBCJvUlngBFaUoMjiYAYV6bLOhdvgbrs3tACjMeq6eZ3gQ+8jU4XJN9DHsPS5uJA0",
-	"dDNY3rvaTbzQ/P/+r5fsb5lilzhvZjJeiJtOAH0U186AnnLPw12YaCTxvCheTneO/tSHZLxpS6CvSmFw",
-	"pxTjigWCG+5bEl04SZ7DUrhjSAZn8v1P+hOtlpDaESXoF58eWMPm0Y+4crY/lHkby23V75ac0qOR+7c5",
-	"je8ef/cNy3StVtUmm4ZJJxhwVgikl3cmvSjX9+7pQMEcO7v2PfcY2AHwME8yrnIJwsVa0hSeAKtupkvh",
-	"DK8pr6wmtQM/gzJxBQQaG0Z/ayHfCjZAHQROHdlDYYkicWDNy7u9yRhRo8d+lF20zM9VK3CFdvKf3+tL",
-	"1zlBRfGS5058UXDSCmlArtHMVHP4R/mQ1jSiM93CTZhV/zv8Q3hl9SK/9nF2glUwpgEaEJRgLroUbdJu",
-	"e+gWI2Qc2VQ8mgmawEV+66NyfWczrY0wSP7tTJha100YL4yuXYaO89MZ4AqNIceMnyG9ct6o+iA6TflM",
-	"0HnMW7MK0731eUVD5eYtMTbs/M+i1JMZV3nhNnn1cMEjTWJgKMTDhXmyS1GCSWNhnbO81HmVwTWSaiqV",
-	"tMKfz2PS6v26KMF4qY24HspAcalEwIO0tiqbJc1gWq92O9rnZav4VHevfheN8SJ7151sL2NLs17lJg0d",
-	"ssnuUSdqujegg+A0iZTeIJoFi0CQfL3AUdPXwDWShrmjoexF1ogVZarT/onh6+qZLrPrjUotk8saf/1c",
-	"kz8NDynqQf2VyTNuZCcgZOmc6SQgmAgZKxW4C3PTSfxuZJrxBrbrOXM1n/NySSrkQpbCrNe3JWhB/IIo",
-	"UiZAjK5vNCCXyU/B+Llo+Qi0EmsXcI3MF6lm3NhJDJ/rT5e+j9/qJk0FR6d+3D5YDXUZ2BO3adOv3+Xp",
-	"WLHz4w7405AQDCpa4a5pRXu99py/kGZbfNuND9AWtr3WUWoLEEpc2Um2xhpNVmov+cGjbFEfIadDwGrh",
-	"18Prj0zXVsAexKPos9ak221npn6pxIoyWidgyCU/V9pYmZljxqOPCAwLR0zaVoQxGyhN5iBdAisvtbYo",
-	"FoBLei9ySbsHyBs6wke8W5pUhE1hYdBGl77acL/ipLBf4rNB57mhRpe1fbu9TJ+IsJUU7Nv90rUde7NA",
-	"N7qI9LYbNh0MWZ1mppKf33TMAWKAe9kNAN8fjX7+10FrU9Fe2Vjq3XuNjzfWx0lmuPF8SHrrue8R3noS",
-	"99ydcKBYMv+CoeB9fOGGMyV5a50xp23qQPXnmI3oPvujdhswMDpb7XsTLWUYajjE0TatWcPoYK7crmSF",
-	"QHSew+hCrSWop8Fi0LYlIfIUU3wM2aMaCIV+tAWFFU/I9pMeBxwy/DoFSjeM3K/Np3eSHQ8nwmETCrsv",
-	"rqYe8ytq9cQ3Gv30qG4/+vYkdBUm79jjtuD0hlPwFjx9Da9Kv/bAkynySe3wW8Wp16YnfMi5CyT5YwGf",
-	"GKPrdBnQY007xUrPbUHi1uz929nab9NYfk100vU0c1sL4s2NdKtWthuayZxW39OE8PHU7li/7VBRm+d+",
-	"g8raRfGeyKLqtpX5X9gU4yIw05IERRPDSKVyyi4bBDjj3zpySBic/+d/ZrlrYveY7ROPIWPP8MZxoj3g",
-	"bk9jH+MWMvF1hvNhBxTCBcR8UIjLZpeRF84JQ0Ij8ZzaNKjSFuR6veRXCkpsIbriFtfw+PqdrgO24nEC",
-	"W8uE4nKgk2sV6/rRjp8afpNeSfziGcTvRwYi12NrrFF8UPdVCgevn0a2Zkv6x6g19mpVv/Mnx3E87CBh",
-	"+3sAoMo7fYrHLllX15vt69u4lJv9tJ3HZuMCRlnwtljC+iL1sga0tqvhR3rg5rQ+Oqh9jPtZel6LK9th",
-	"4SGrmyAUvgvsL6V6CyaeM21nTCjIu+JXsbaoQ+ysIUQ9AC/hb4cA4KVwrwapvnGXbme83n0OvUUdtXa8",
-	"fbG69t4jLzqgocB/HMyDt0EeJkZ5sDRHm4JyII0JMdH0iKCh+B3DHDZsrjH6his248W0Dl+0vPAOYBdY",
-	"0MR9pIAhnYrLSbh8ZjLV5cQcpIBDvWf+4YC8MeiyIafXWFHPOGwImKJAgrB4OIyGiRIDVeoe0iZ0s3OS",
-	"O8lO57B6KhFu+Z+4phG+8oNv2P34TFyehOaf6fL0ANWG3wte2NmWd7UW+Pys9Fs6IPmy55Cp35d/2PFD",
-	"OKGX26fPddV16CJ62nHulAts5SqKXkm80zdx25V4zFwJHuxFIVow1C8Oe6FQ37RzrY6SL+6/78Sl1plW",
-	"X5UCDv6NKWakgfVnO9d4Iyhbj9OLne+ASboQx5A0r81J+klJTfziRi2hfhI0C9yT/lyhXtJTfLOdEuga",
-	"xtAOKw7ivR9H5zF0mMotBdZ6ogGVWSMrYqMZoZDTM12pPI4oTVha6EuHKQb+kQaUcIf9ld7utkOuj0zo",
-	"b4Xsk0JEX96ol7YEggELLojBS7F+fl0b9IJbQcehXxa1myCm6YAg7/DRmhQ3DTcCo+PkhchvdnludM/z",
-	"SDPc9FbQIHsZPtoibJT+eDNWyj/YqXfX96xusXMja1jmdnft9SyWH7xCVvDyHGNtocUuIWL1Gt3EkWD8",
-	"gJtjAituLKJTugOSKTDA0z3Ai8LjDP3vN0mV0jbl0qg6V/kmMV1PhBUZ+TVVDoh4ZYPP0cV3JYT5biOt",
-	"DGaUXViWZqW0MuPFBC0QKeRc9udhd1PQc2uLfCvZ5oA+CDbb3//q8P7eAfPv+FzZ3kto28F+V5Pspi6o",
-	"xuRuMhy/Fglb3ngU6xJyAPjFzsSSAC5+cdHRdzlbwooP1+T3EC6KrDsvQTwrp2QyegmGSfODVb1ptoFC",
-	"d7gSnz/+PfvjAQuDo/OXsPvD+z//67/9073TG3f2bm1nXSc+YfujD+rQyPM57xbXwsn4t3/Ce+UPB12p",
-	"JiwrxXYmiBIA8aFn7Ef0Vn+V8xRe+hrf6YZC/Ns/OTycAmuFQ6HttnFk9QWnCJZ1uMTB5UxmM2rR3REC",
-	"DJ9CQqlVySHfoW1cuY/JOrqxesg3Zjj4Jpj8txIxfLKDazPKtPPm1eLBFmlp6IXuMKlYTu/jJb8+fgZD",
-	"5p3pE+Qj98oWyoPr42zZO32Re6XZ+xoSFjW3YsRtYfhg+OfyQnQ3Bem98JhO+LmYzHTVBab+NrAxd6Jz",
-	"7SAYC1neFN+wZSSFS8CxMgHv1qSRTaSaTD3ebVVp6O+6uol7Jnprohe9oEXh7Zfu+TXJTSJnTrw112Em",
-	"/ShauMRw+5L4Gq9fy+5j0sYm1id+PZG5AUqLbB79KQV1dG3yKt/s+rHe0MBxA7pIKt4HksWGyeAaU3KT",
-	"ZPbjkrGR482qKE2xmqPhwwfDDhJ1vcW3JykCoQ/qujifYOxQ8NVOjIVEVd4QBAYgEm1uwR341ZdfHV6b",
-	"A/lGdK2/AruB4HWnruIIMwAFktaHcuVB7Szj8SJg/z8TcZiON6OFTJh42He701f9QsTSXZtuitlFGMP1",
-	"6rz0ft9aVQ4ovixlS/a37GzEfsfO9n/+16tjljYCz9zv7qcQXZ2OVfM9+Pfg53+9+vlfKHXIV4dffLF3",
-	"0ErDQy3vJO4P18VOshPa7Wmwxjm98K1Fn176FvG7P9bNvk92XmKK/y5A6g8zzUrnOajt08dorg5n1FcZ",
-	"W1IoBiZ3S/9D2rJR960C1jRS/we0Uu8ffNltpv5Q4/Rfp8V3k503XpEaUXgze/3tAPA3ZQYiM3IzMQCo",
-	"SX0D/5F59IcA0fM3AgLRq9ujfijp5U1Oygm+2aX/rAEldYG9Jy3TJb7aWoj25Fqyo5/BNTjxlYFvfRM3",
-	"2cGawGsSBYAo5U0A0UoCSeRtlECyhoo7fcsbquCbS+3DsxvZ6tgg5fMzeV7pykzg/fSm8caxpbvHyV6T",
-	"jiDFtD4THBukbsH8P/VHcWVLvqCydvCZni405Q70n97BT0qcI24V/9Y4N5As6pab0x6rgctAFEeddS4Z",
-	"qJ4NU+ARqqVjFWWl201YWinnDpl4zxL4oE8xYYX3VLizVzOXjJflEkeMW4t+pbFKlbYTb9yCbUjRs85S",
-	"orZ0INPd61K1dkMsVx6TkSttoxTnn4vemdRoy07bZu1lAy1en1kuVQgeTadSFIUou0ND54KriV/znsfM",
-	"2+q7LADwDBgtgrs/ijDkBJHOr0+f0MoAuOoCXyxKfSXn0L5phHB3+hl9hQl/naLoKrjiwlhs6jbg5TLv",
-	"wJZ3JzS8QOC4j0cMi9rek4gKrJ6IzTTViQ3b0dS/Ju/aZp+ar2S1ipd/9pg9PHzwJXMVshhZPc2qx2Wd",
-	"U4Fym6NVF0uSulSgMgQ7J8gzFkI73MXKxVuXkeCZRggrL6QrKJa4qlYd5cFcluWeIgJO9Rm83Em2VB0N",
-	"tLbqF1twyn7SAXjEB5xYtalsWPr3e07s3nsO/MZq9q7S1qWgJlpP2dIfjEZrkwxXpruf379+/YrRA5gQ",
-	"oYEIfNDI/ng46kyUYqXtSgR4OtOlZYaCEDyV8ecHWukcKn2xiuD57uS514WW3mcbN+Zpd1WqI+RZb4VY",
-	"iPLIPXPkTkg63GmrR5vFO/zVzzFCam8w+zcOztGPPS/Ia58/WvpieMO1EGNRdr/fOvJHjDOo5cte0UvA",
-	"9TSlA9NQrDa9V0glzL1xNRrdzxT+I9ynTBfV3H2VjhXczcen36MUl9IT0v165F7nc+EeZ1QnM9T5JYFg",
-	"8zr7eW1c2ROfTWYLZ/QPsdSU1CGEDm/pFsRDLsnKiCVB1R5mAKjLNXF2VnD1Nk4wFAVNWoG5hndbsnHp",
-	"Kv1RCG/zKHwI1ObW4TOd640sVphtQelgI+qQqoFj72H11JQOEn4BxVJTdjmTBcmzUa1UFkqlYknkUmQa",
-	"Uc0DbMQwrgzALx+M7rsMJ1FF0bRl+6k7d7IDdryFvQcW4wf3vv/8EpuoAdxmHS3nuRfwDBvMtPXzMrus",
-	"4Od7rjyLdfVjQQ4/18xqD5PAOg38BimjHMqz3siGReSLwzD7jiQ78cr1XajQ0WYEJ5kR15w5rPcAJoGu",
-	"MwShb+ix4UV8aEgDbRhfj+F8QVukqWgE11mqwOsTfoNMQKjj2l1PMTg+GL/Gcx2zFA7ZTBR5Olb+ftdh",
-	"gz7WL3EtJKxSU2kJ3KBLZqqFKI3IHZSCj1Wvbod+Gh6iHgpGyGzWPOLR2lDIpJs8WGvdyHtvI/b4qtGg",
-	"+/Ikbtd990NoHnewdea2Ix5STSqzwexOVwSvB+yn0pfdxvOCn0+MyLTK17g7prykA8HOxEy6tL6LUoK8",
-	"kjAeAgwxEwCGZDWRCa7u75oU2hurDgbs/ioYX1p2LixZUnCmg0phnWpY8QSoRZ3yHzX7hIrne4qSuIr+",
-	"u2ukTtyb1a5faeftkYrt7XkavIeEsioLxzj3G9Khw0P3jRbxfSd+i7uvf61ZrwbCRKUHfGTLwPlYvKXF",
-	"aa7EqjNdloTX2N0mC3szDmZv9beVHT2J9bN2rHGt2PtkSh+UBjAs0XbWbRxkVdysYtUGa/U2AXJYEb1L",
-	"MghFrjBTMhnehzxvFLTCYOzwOSaeKUoT9H2I9us23/QAbV4P39vSHv5WqjxmqDTT3KkTYpLNQDbtT5vD",
-	"Lj4ODUVfIud87JsElQGWDkyMxvPUfo7pBidek2YLfnM8ywm+U9wKV7CsI23NNVGAxOnCSPuPz1vQ3b6E",
-	"bZXKfnHYmTZ3y7hmPJSTNcZKI95tpqmoMQgAgksFq4MJxEBmpTg9LPnVIFHrx93PLwEjclmA8Pz5y9de",
-	"5JXzEQdNhhWN5x/FRm90fjRu2hpaXxX2mRD5R0gwtGW5tphWdqUQ5mYy1+UaONTG7EOvuDEgXaRGYtZ3",
-	"l2yvkYcI4ZA+eGPzPrt5NTuNBniNP+kk5DfdEkLvEA65yFwu0kUIus5EWzKGR7vw2T3qEEYVABHTdwt1",
-	"CDPZJ281rcwT//QGse3bRqquJjBwu8xRYWzRJbwmVLk1zIjNOC0npCHpzV+gwUfhZfp84pp4X39xEyTA",
-	"bSz+h8a7RtG3VvviTwHlREFvzklbl1UYrt+rzl2pCvG91EWdPm4L6uaI6hpjgoOKSnWhiwtQJqWiwKLt",
-	"pEjP11aioWmj11Q99MQKao4wV4slYXC0w09xSa9uzax0hWOuAYKEGjON2nubLxA2HSYR3kuiRe3eLrV1",
-	"dZCyUkDG69T/t5BH50bIjz5VC3wRj20LFdwAbr3QxoqcrUmbvGWev5NKUe2WjpPqZ7AG7mKBGcE7jQXw",
-	"o1NxCqd/JEqbmYveVXIg++ecWzCv7yT158en3yONvGnaoP4ewdrDve07WyQa0mshax/A87bHdZ1UEaCr",
-	"w2BJ1cV7N+dzmF+LZd4u/08jV09YuXBO18O64znUi5PUeSQ3S3CV8nrgx0zTuWqcwd/YQpQ+rr6/RWPD",
-	"Le97k7q2rv8C9qoPdQsR93ecR2tb4NzmANyVBFVrVu+mgP4bMMiPSS1j4rfprYDr/RDKFkIV2ha9jeRu",
-	"9RIKZctlfAnRxxHK9m9FHzvG9GA7CG2gnRsoZT2htccrYDvvmLptiyKNcW+dsvQWFqYVQdaZWHriQmsW",
-	"eXuW3XxtQrn9day/BxhujQWtgXDapmTI9Ry8K6VANLuNy3mjLBGfcjTQKjbux7b6lcOmerypyENx6lpV",
-	"p9TVl7ethm0E519TGrgTN9l0Fp/zCypphnHbBKFFVOONYc83ybHaVO26FTVHvT6oilGwWazCTFnGQ238",
-	"jfTm9SoG/YOSWPYkVWvg4a/RT+wxowyfAkU4ffXylEqXY7/m3o8yf3+vftKkSQBSe2D1oD4WHeVEd9Gx",
-	"tQK7Bpj4TPg6fqWYRjHv5GI8ZmkL+RpgA8sbArS7TMBwsT8zTOboL8epoOMJXR2Ydcsw2devcUuA71tH",
-	"bG9WkZvgjDvxat0GX7xld9cK3PwmGS1i5+c15itaFOdv1CUjmA+suIdnYCv9DVu3UBYsIQwOSxs/rZb6",
-	"dVm5QvgFZuaSqmf5n639bk3pOpZ4+iHmt8Hit69fjM5vOhlb16Rj97cLe49Fi79G1WDT/eqMQ9xKG6De",
-	"zc0U82112HZKtTsLujzN9EI0kImVMkc1phOX5ghOebD9HNVZ+fO5VD3Nu9jRSaWMx3vSF9TBCbWPX6H5",
-	"xYQk/fjdI+oIxlvnv+nkn//2T57MUOKgwcnBrsuPxV68fML+ts5ShCTkxcs/sr+t8whBrBmgnKCK3RE2",
-	"c/qk9pr6dK42VGdBOPMA47ssOLnGKpRHDajoKSKYUwJHu6yk2Ly595f/8r9QDjLfOLSNdcrp6VXIdOIH",
-	"Bf/UVQblHAQ349DRAyizXYw9Mj1K2uNRdvSmyHePm5X7jtovJGNVrwKPcx8DaXQjOPbF7lCEclH4u0es",
-	"XssI3FlWCsMa21lcgQVh3ll8KQJ2iQLWdWX9mjhN6H8n2fEdYhqixvOt2mg9D204bY+o/fqLr6Gn07zx",
-	"3QvskrLoNX/xhVZPCT4UrOW3GOB8g8x5mxKd34XloOar1xVAWUOsGka0j2BAWFnUa9yr0cPx8n5Ua8KH",
-	"LjI6+Vdd1aUQzAKcpg4pw3QlGTmVQVoseWZFGfINWn5G9fxJcwFqm/GylPwcKIytStXKs3Dg+dqaRAv/",
-	"MB5fjUZ78N+v4D9fw38ew3+ewpf7z8bjqy+fvfldZ76F1+BNvaFT5waWgP5awdpsUQY43xbSETzeJRah",
-	"H7mbWxqRlcIO2elMXyqGvAPOyjGTlmVcOb0ZQy3QUNRTvqYeE5/exE3k2mIbuEU3k6/8IvazqsR3rgPN",
-	"oiktIwRXygKzOtT++GNmcK2cak5mE4dF5FUuLbMll8XwQzawlvQON4l5qJ28q4T7uauAYXMDOte8FOo2",
-	"2RAg3OHOX5tICfr92j98Q5jGNeWB+pXud6iYuoK/0p2FoDHa1moGQZCw43Op8qj+iDTMwpwgpi0KGmF+",
-	"QRIPMvLlNDnZ0LasnRQCAHst8KvwdKOSSq/jSA2sq4xvy0pl3ZUGX5eVqM2zl1Ll+pJBJEtUVmA/GY1G",
-	"fkUoA2VBRRN0kYPgSw9gtlRY427Q04VHg23jHIxBZNe6OrqLEdWbEJVFCSc/qpwbDTBeMn/GrtE4m3fk",
-	"AwBvHwRem8Ni38wapbrK5CQ7puPQkLJbR4bm4kKSWWigsO7h/roo0HDDbpoEVhQUzrI+s4XvIVxhUfo6",
-	"49dzRFw/nDSVX653Ju577f6/ii+8U62gs0JjEPU6v0A4oow7ujTVRaEvTYzR8o3A3pQgs60UkI5raxW6",
-	"r9rUHPip66X57fOoz+Yvka608tNpGE3zhxeaFKuIaH0E5MS2QSsCKH430fSReNaFrLtDFt6g2pTSeAfX",
-	"NEBHfYxkTE3nkpLo4cNmTSY8qSYxt1594GZwme702+jf8bv1mZvGppxHSgAndRGcWDVXaRYO6k2dettn",
-	"wWrymO78AsYjnMOzHkoc7VlvqEgLpruRQcVG64aN2mddDsHBNfCoPoXNM9CYaxc9wmMcX46qwp5jHW20",
-	"95DvTR/tPXvz41fv9+KPh9t83D/ozpr3XaeL4RFDJwNapMDT4BNXzM/vvQDfQeX+/dNiMX/Tzu53/2CT",
-	"zvnf7f0Pb37cT+6vGc/3rvJ+SMi4TRYFDK+nokhk1vN1/Nm0UuQHbaWmZ6dPjhiEHrF0oS9FCcmxzOBq",
-	"F9yyo5//dc6vBleQ7n0u1e4/ZPsUDYUfsRkz50XRMCuSS3SsGiaCY9eFy+ho8pQNOtOD78bds9+xDLJG",
-	"kl2uJY2M+qa73u/5oI//28x7fZTWaAeb7jrU39cUoRVAiTEKLhGrWrK68inGLXvS5BD6a93NjbK23PiK",
-	"lD05qRvdK3rRfXqG79PYm/X0t+B327C5m1T3vlv0RB9uW2eF6UBhTaeiFCoT3eW3f/sEnQJQg3uqK0WV",
-	"t53Nf/ee++OGLAgb7F2fvW9awJpG3HBY24feXsNAw8n8Azy/uaC6nEvbvRPAYn/67ZOfGAfpFZI5LOt1",
-	"+My4KmONFPQ9TidcxHXFmnxGFD+eD6iI/sH4gjpEZ0VadAktcOk+M97pwjI9F8bBf3rZ6iIJwlHL683G",
-	"/hC3FmvlXsU7GxY9XMwokmhrV3V8vj4eUt+5Q0NweafCOAdm4Z70GIoW2OJMYNwwcFNC8nRktoj05YsW",
-	"me978VY2vNHQ6nSuMUes3OlVlimVtBLgGIPnj78noFWmlZWqkuo8ZYPH8C0KEI7OxSOKOaVriE6he78/",
-	"ywxNPg/NNA5M1GRrXjfI+X+TgxRPu7+Fprm312gGzS622NobRh5sLN7mrTpx+batihtugod+63zxrWyb",
-	"lDiNjZJgng+4o0rJDyyy3avU9gczyo/qN+xD9h2HWOO/oZz3j7nKZe6zYmxxgvILacQaWCQOX3iYQTbT",
-	"2qyLhCW73MZmfKo5n697tRGo7xDXj52sKTL3uk+ZO9Yur1upXLhczplfrVjQc/hr0CNqJeIm9ldtRXdG",
-	"JF53jF2Zt3KxIG2G2DQmRDpmAgv0aDsT5aU03eklTTWf8DMz6S7C99NvT57+5FcFJNq9jBdZhYmeA2Ew",
-	"K2Ju1+huuAo3qfjQuht1E43prj0n4RQm4Vi73Vh/b9wAm+v3QnBj98gGa9xxMkOwGlz9w2j4IGV/+c//",
-	"B3xaYmFl/JkytXrH1NkSsqKhsYDEjTbqEi2IzroweFTMhcw5E5bxYpiw/zgcq8ezUs+51eflkH3Nvvzy",
-	"kA0ORqODXXaw/2B3WFd1prFBh/v3wCjw878QBAqSsq3YNSKjxRUYKuiYM56V2hhfpNtqVujzAX4aq9Mn",
-	"uyFaAb5uTGM3cQk+YL6h3iM4ak+fHLuMZHys6mOlp56YoOcJDx6ljQm2EXdjnafXV58eq3SlGMiwDWUK",
-	"hSRbFIuwXdHhpoy9kWXGVHMYGz8zuqgwv1VBKbgoVa+7SGO19iYxPtfokASDpFQOT6v0Sn3vsdpY4HvI",
-	"nuJykMJJ+H+DxTLD8A1mkHTLMam/Bkg+IOLCbXZK2lReYRC7qYFrTRCX0miGdIeb/nKfD/DfZfh+6T7T",
-	"9wb/haXuKSSGK/ctdRk+P1cXp+9K+/et71Y+H3S89J9a3618Xnmp8QVCzN7E9OBlXWtmqzAff1brdWbu",
-	"pCbukIdKObIoukJ8SG8L9RH7ViRMdpo3ocv/13aPNV9IGl1vpJaNyjq3t0THWEYf3NWFmFoGrnrL38Jh",
-	"t0HNvtMFawGvBAJBA/i0k0gpIXJDacIcObYaTJBrSN6Aoz+wZNzdSf8WSBz0JmDOz6HawVjhwzSKJjST",
-	"pdGsjxi1TWuFzB4e/syw0ydjhQYJ5itv3T9iHCizw8he6rpJILcgLuXivBQwZnhXiFzP2QA24OED9ltX",
-	"rcEsuDIwBQLhINWE3fpy5KJxGkJ7JKsfdKZVbB009AxnVSnt8hSlRirzLXgpykeVna3uVApf61L+GTnS",
-	"EfsanyU9JEPwkMvlPGQI9TFHLK3R1uCfiOHWWPeiAbiGJxBxnR4zI4TLyI6B0lIrSGp+tedv1h5BfhxI",
-	"lsRekHBxSLUQN7N2sfP+PToDp3p1SlHWb4oGNI10kZVChlTwM10603ik2weWlAB7hxSxjZ9XUhskZFiH",
-	"ixYYfcx5WV2uDiQaKM+JsV/MCPRNOKk+ISEHm0rYotBUGRlC2eIQM4Nny+UbNQn74yOffgua5KqB5hqr",
-	"sfr8c2KItEk+8otbki6Gn3/O6iJ5IG7UBVbruaCjBRMPg78Wtr2U3Me8gPbg6ItheckvFd2PRXVWSDMT",
-	"OTuvZM4Rn4dt1etOiwNzs077pWCec5AO4J4r4ruOEZ++fIX3dKwWpcgElss5DjYrICZ+LVCcAjA5RYsu",
-	"RGm08gl1nVFryJ7ybDZWtKHQVb3KtWxZioXg1pDWIxVLvUEixdX9zW/YY60uhMLvxmqPsqwTIaagN1gf",
-	"o/hbMcmw19fSfwulFO7fv/+QDVLSD45YMCikQMIY9Pjd68fgRdeVXVR2yGoFGg8xBbvC8BDiXwoG9m5G",
-	"QoQZwoiosAj9OJVKWsGeP336dO/LB4eM1BEzpGE77CSVfPmWf4vhVQrfWR7DcBz4i7L7RBnPpbHg9iYP",
-	"E/7YcCnVhaM5tNIQArH8a8CWlVrbXUy1BfpR6sVjzgzMWokCZ+RsPYyInnFhjz4LL62+gUpCHaz1iMrs",
-	"YU5wxrxdITQFi5QVGlRJDly2KBJmKB7BkqAL65dxm81gF9WSeoO2LCJTSxivESo3tBB4cHKdEe0Ja0YE",
-	"60wcs6yQwGcBoFlRQ8bKomDyXOlS+MlgFW5XExZmmTDMGchAjC6ZC3g1jOe5e4O2Hk+gnkbkzySecJnE",
-	"XSyTeNUFyRKF3cBK4Amsz9sR2wc2+8Uhe3T6+PlzVghrRWkSlstzaentdAj0fgL/OYL/7KUJTYlTZQpU",
-	"Hbh7Fc4XvssGJGWwtD7e6e6QfackhuBByw6xDa1FoG1ehqhXfyGBn0EjLps2zgnZylgRKUzvXeynrNSg",
-	"qJAIsgUPfOQSXMElkQK5/lj5GBDq5wgG8hN9YD+hxPITOy857PJPY/XT3t5e+D88GLNT9lO8V+wnzFJF",
-	"LAsmQtvttihx2eThR7hTCT3cyCVeK1hg276HlmzXacy12U/sxfNvThGpcu6LTf1E7RM3Dzwp4kVJq2pU",
-	"4j16KKML4cJ+WvUuqfumjMB+Ak5mLJ9OO7sl7lazNnMcsvUFLNExc0FMsX2mFJku88aaGDcCEkrYTwz/",
-	"kMYiU4Jpo7CKJBW6rzwDolHg9mMbY/W0IcuwQhpLDJ0OgqsDms8lsVtSK7FABFzXseoQfY4YdycMdF64",
-	"Mp9/DmRGK/H5507jnaNdIJ+Tkc3PBOt9wRBEDmWjC5lJSzaCEomotC5Q3gSSBk97pl8IC9wJOPTLhVCP",
-	"Xj1nXpL0WRKRhGFAFV2heuZAsWsh84j96Q1Epvt27g9H5Ag17lLQQqEJA27HS3jpAFcXXnn+BJiqEpl1",
-	"lk8DxPqRh4clbM4LYJiUWJ9oPp6CC/1WuA2CER2O9o+JZUn/reM0INS5laIB4dP3hyy9NxO8sLM/A+26",
-	"h+UO6M+5sKXMjAvgvacXQvGFHC75vEjHCmUPpV0ng9QvHC7EridMT9EW4qkQldyCjVRspajSIMWtogN7",
-	"z337O0hOl/qs7mOVuvIyQCk7Sh+l2INJnRzSVQnpCJiEqwwDhWDoWxCfYERfPBztb6waA3AloMfpvXDj",
-	"7h3ca8ZAs0E63hnvpDBTePNypgt6f/eYen98+j3LRFFAt73r0EARvdTlnwQoWM4Ws6WRGS8odmeAoiZj",
-	"M8FzgcuMX+/vepCV6+jLe17US91waggqjOe6Aje+uXeVKJdHqFjC2Bbczo5kTswvpUEcPc/FfKGtUNly",
-	"7w9iiXGHZEt3ctJcGpBvlVNy46XHhkjglsbbt0viqy59dHrPHbVv/PVgZqksv0pcoS3QnhyPJ24bAf+A",
-	"jx6ORsd0eIhwQX0MkID2XGtnla9HxDgVKNLTIPVIqGTMlRcuYgOaF3rGCu4cyB/h2tITCbQnMHOFrNeI",
-	"vRVLlAUPDw6A7z4YjUh9AboxVmPC/4ILDQ/6eIfI80wAb/MVtdJjZ5gHAfEcBmJ1GLMowSQ7HKtvNVJ7",
-	"6MwJ1ISfCrW7pGlIGUGlIuHRywLN8lwgEcfLp5VAMTZgQVDwQ6r9FrGhqPQWMhMuOQVFB0ERqUUpheXl",
-	"MqqxFSu5hJM0LiETQNxc0jKgUTtHO/eHo+F9QjzO0B7gqRz8fS66oIlYTsewA4hmCKVVFqXOhDFItAp5",
-	"IYbsWxSfPOUbhmyH4MTOd452/k7Y37uuWt6+g9HIVSG1vghBRPH+0SXQoIN6nWmKuiCLQGseOExYjQej",
-	"0bpmwrgon4jiBVLqhjFl5+hPb9CJAiVBwMMhLwRWNEl2LGaG+VM9c0PFbjzPWLvIr0oN519UhkIUxdXC",
-	"p4knfbC9vsf0CBavQeYJ4i1wHwsFQXGLfKY6w2xZGUtnamVPvnEju3ZPYFz3FgWXrd1oI3RWFt71cBdL",
-	"Hy3bPMxj7SbEnHrtToA/1AsrQVeLqAR4884qCVItWgR7HHvX3HbH3g9yi4WOhw5ylh9+wv7To29e3MX6",
-	"v4412k1LT+JTTxrjfC6h5Bd3v3obkGNZwC+rssQJPhjdH6vaydveFZbOdS5Q8Li2vBgIhHV9MebxYUeu",
-	"8A4v3VHIvScCtbUwSBzJoFlzjFXKyqIGkkDLBkjoXKMphJh5xD7HSmkrM4HOSGmNKKZY8QmPh0kj7aJR",
-	"RCxhcgqGiASlAMx7IEsoDrTm7p/QrtwhOY5KjK2eV+wemDCu543PJ7x1//q3Tmlpv1P8gkvyt2862vXI",
-	"NxzrkNRr7cn+/HO0lB99/nnbOL6i9+rSq28oWFAWEabIbzGVJchLmM2dMKRpFC6RohHJifNO9FHsbDlW",
-	"qczjH4fsmSzQWpLp+ZlUzoH76NsnxywFgoZ3RCqHKiIVx+rUZQWB7xJ2pu0M+E1jBEP2B7E0AotVSOWM",
-	"J4DEcOICVRMZK6hlAZb+qDBFioUv/N+1RxnTwNFwj1svwDVFvIVWdTUuaBqkQ3oIJqIX/B0E6YC81TRU",
-	"5oLCLHSJXmSCq8x57hYESYnvPCGdcNR1iwBu99gnFA76gsEAbql2jnZQG/CR5EfNeMx+dyjGSb1Puput",
-	"Iztvr82Qven2mgyxPP2abARmrWszykfcq9EozXH7sj7lZSHhtjVOdlLfB4yA6hgD3JzGAPrAAlf7h5xJ",
-	"q72Lq2t6t/oW+n4FSS2M/PPaXlChbXQUYjkfjCJX5UHDU9lZAK5L5mrebz1tkA262msGFqrb9D5UBsWa",
-	"N3fI9/DkAm3o4nuQkRkmBLMkHoC877AP7/ua5x7eiq/sX//Kd4o7k7bI6aUe3PKZLs9kngvEEh4ePLz+",
-	"jddaf8PV0o3O/ELcPPDvxxRmIkGJX0Y83PHrNwCqaRlcd7AcYZ98YU3mjxk970ACoFpqaIOYSvD3EZcK",
-	"blmtMpHU/NIl/oRbkROuib6ZOIMA5RnFkHM0ApfCt7RGPMQlXGVrXRtTP0JH3+V8vdv7tU4HopJ/v/Ir",
-	"NTq8/o1vtX2GYSp/pXfwkU/JDEcUNDcENziMBPqwfJqJu76d99Bh1OuObr6T3twHriSRU4U+h9qJKg47",
-	"RbWsVOLTgaAA75wqkfcKDWiLhVCkk266iY9wCr/K64hDe6HXWiVwmcynK/kruJLR0UP3XeaIvL+B7jKt",
-	"u4FbXLlQcxWPG/ijP+TiUYwcuBuUuKRRJ2CIJ9h1YIKtaMqANtalPMcYGw8wsTPPKus8jYVU5DVkEk3z",
-	"qW9moqfgE4J3QkOBj/oIOfSmWPBKSOUFjyE7ca23hhGSbMIb4RNor5iOxwOGHDpyIBzZwbbGCnHwGJ0G",
-	"mm0a0JcpGzgfWHc14V1HgMLyOKdRuiDzwMQt/rEzbTmfvo/hrwCj51TNscKC1Nz7+D1GTNokOF/8bD8z",
-	"AZrFS2IHmE2Jm7GqC6Dj2OqdA3+GaTfTADS4NT4Ci52LZW8BHmRBG06Y8RqRYJhXsXyieDtWZKTjaLRA",
-	"NK0SIeUMe+mzOzmTo6P0dIVmXCqWcUWp5jBagg0ORw+TsULfWOpCVM3Eve28cyeYeWNweHCQkE/2DGt6",
-	"BxGu9tsGDgrtHQeQ3VjR8CFT7Df7I4hrODjYTZxJJMLWAV7OBdYCH9pFb2+KjreJO1XpEY2BThwCuYhJ",
-	"47fhiKFZRQkfihFSy2OD7hybiUG7PJwoJS4ByGBZIbihQCL3jgOMuXvAC/h6Se1AUIr/ZTItOWJMqJm5",
-	"NpYdAIZWT2uLKi/rewzu0dAs3IICLlBzEn4Ima6UxcKrWtVN7bpRSEWhMWYCXrl4Gg1UZ/RgSsuHYxi4",
-	"XWJGXiV+i3bxXNd5aKknsKhNEBM8ESo3EyVE7gv7H7nJwHAbZAAWAF5kzr/tEu76yzeT5zP4TPupeFkC",
-	"6AJ+wY5gLvg2dHiM1jFoxIGgaCxuBAmC7kCmsC7+16M/LmdLyph7LpQoOSKyUvdWbWvDRd7tEm2IqD/1",
-	"jOIDhRvksF/rfHlrck0YWZBGmuD/ULu6IVftfxw1J84YQLAC7P+FztaEmb7idhYX0KUKvWmLb2N2meYU",
-	"k01eqH9nMt2oh0z3WKtp4bIrHe73GNMrviw0z19r/QJCLem9B30WwFQLqlvyjcglf72k/JqHBwd9XnZO",
-	"ehADnyoLTo6/Uqn1aRvNh1QOpT+sMUJCYVSD0Uuz77LbkGQXhbbDhTrvpT/ewMbD5wKxjegHwc7MxXnq",
-	"Zvbq279jcg72zw264atC21ff/t1daoc4hntuFTqszWdScbK09fFT4yw/6YO/+M2CgxMpggmjU3Tn9hh/",
-	"yu/gSp3WOOcgBoborDkv30JQmI+1CWkHEx9ZPJUYTQIBqionXYbX9QQWXImCnYlCX5K+gtciwL44wXcQ",
-	"mDVWis9RyKT2Q5BQFIAErTsH1nXX+/T7j3C9zcX5765uBDz5dKF/pRf69PuPc6HrWIB+5p7GpW7f4ecr",
-	"0W4wp2rBrIasZqM6NCUKs3MTRlWPADC81g4JY023ub7lzNcqYtyytP4+rbU31K68rrc7ZCsA0SF7Vc+d",
-	"oobagXNcLX10GYINZsjZp1QtiluHyYcGwdcNi+GIwnEjMdpYwQPCoOJGpMmVCAQ0rAeqUlwWFlPRlTUy",
-	"dzX2XOSiyMeKNEBdEiFjnAzxQxYb7CkKawoROXU4ousHwbhjdTh6uF6rixblV6fX1WPbSrEb3ckAqIt1",
-	"jmJnXluEWJ+EUGku7K3MRTnc+aSDfdLB7tyhHsdyYCShDz2O2EvMBXrymA08xfGdW/AefKMxsbQjbxiU",
-	"3LZ5M6tZ6iLJHEPyialTKtBJXj+yoeUic/YTV3CQFFJoSXSW02CPsGk039elajHnMpF6BKdSxlYywvHa",
-	"lAYm4kCUtRK7Q/aowVAoj3yh1bkoV2eG8LWHRyjHwjfwxRQTgI7VCdaxMbH3EuPXlb4k5mm6SDwVN7sN",
-	"gMDtE3ca2y9E2Nda7GhUkKnkE7H+RKzv3M3bjoi9U0/vSjLIW9boCXQR91IjMDoUAARH23QdXPf7Vl7J",
-	"XyGeYiWh5xqlu7Hwn7TvX/7efd8dcN+JtNhgm+6phid91OxGfp7194w9j3INQLNjtSZ7gEsnd8ZtNqM4",
-	"SqhxE3e0exxC+Mdqzj1eCn2sPnkq3NIZCE2D1qCcaxyDbRr+XchrUNckxZfYYC44mgbSsEmQKUSPVajq",
-	"7jJGzBe8FCjZUIRsMzT5KMT5jBVmTcf00D5POjbx2yfX51MHiCZmnzSojI8VJv7+y3/931oO4zoP0DBe",
-	"5InVhSi5Sz6dJiQgjpU3Rfz8zwcj9lsPSmDfnbKnrx6x0x/2vjr8gn2DrbOvRqPRkzhNUXMfj1exATQs",
-	"TJdZyhzXKPEQtrFqZOXBrz2WwEPaHtXRr7i0Pq07hWZ4MRUkW4Nb+6gTrNGEafjk6M2kEgG1MVbcwuEl",
-	"9AMQe9ZGbzQa16VzEUXyP0ZLXrKyUsct0IfLCmRcCsIVqIirJMgeqRAWo1XwPkXAlQZ59p5XGoK09IIw",
-	"VLZ/SV5yDPcmXAXN2GpNoJ1GY8lYwUOkX5SaMj55cAAO3pfc56XAOdmSK0M4Cne/MISZduxw9JA5W7Wv",
-	"3kPGJR+7TqpDXKUHYtzwj4nSduJ/S3eToGTVwB646lyx1aWqG4mhMXUTLTOUe3bGzWQqAUMD4eBHmJ4z",
-	"3myX2yk+RhEQCvps3Dnc1Ul0YTDJAyeMzhrb1vfNNOS/Lv2nKxX2R8YtdCW37yHCBOCsrixQmE+60idd",
-	"6e5lthMSTnh3tqQ6WVJP0S2uPn+NDhWld7r3Y/3hvVeuHEm8I9hBZD7Cm07IVyCbLQelz+PBLbFa7xoZ",
-	"K6Uvd49Cvl4RCrgFjmnJyYAEGd+l7sqAoxyrgdK2D7MgQQ4e9tyGnLgUIOuiOAlNjya8hAobcevzgUde",
-	"DJzVJSdGCwvks5Yb7+phRsS4WJrYRKoJJq7C5F8KTX2mymZtjmfGipixLnJRMq3EkP3QSiVM7QPQkbga",
-	"PxeTma5Kl1cokpykce1gtmNaQNqJhKrMUTpCHNiQHY4OfWZHBKyWAtOKwIPoObjUZW42+Zqfq2eaapps",
-	"x9Zq/WHn+ijV9fiybUJMV7nJXFPCA59P8RjtmOQYOzNC2XVBhNxuH0N55wFOfis2xTnVW/9J/f/FWcnq",
-	"rsBV5e5Y3qrufx0LuV1//CPD0lcvT1+zDW7/NCHFKDbG1eswpUj7FeaSOqKQrrAXuLqYJ3is0r97Sl33",
-	"5Jjprstrh6sP6QxDYjb0x2Rv/fBy0+nR/1a3x48+lMOxCpEm5JtZryPU9PBDPOExVb0jfaFroJ/c4p+0",
-	"h0/aQx+S/8eKg0yy3ED7btU/7vKP9tIJWgJ/Qekl4tg4ElN96r2zJYYerXOcfOO6vkMCQF1scnm4+X/K",
-	"mHD7PsOiiLJAN89KjPFwz6w9v9t4J2IRAw20cP5Y5mI9w0ndH7JX2ljKbkSxafA3PkxppAFgV9duJAuv",
-	"tGblzPumSXO8in4ZHIz2IfBLYBKYsp46hmgmkYnVF5Sp0SChEap7NVZRWGo9dHHFM+vCCFvj+swwd3+I",
-	"joyVH6hywglHfAlhNcAYejAaoWG4FIbM5qHWB1QFiDwMVNAiyhBR19o0ceqxYMQ3M32JU4DCKowM3WQA",
-	"qLPYV0q+q2jtpQIBl5RawKlsMJt+4zMK3YUYQ43/QoKLm1kHzSKdNeOFN660dv447DDm9iBjKVK32zTI",
-	"rh8fXTu3f7r8sKgyz0jSiFPd+xGOzb+3sLJPotivEKGIlydQo6R2+8UiD5XL2paZNaUvd6ZvQQhLfPl1",
-	"HVL3xIkH0vVZW4mSdqWcA69dbdnCf+7G4vaImYXIwGYekbOIxvWwu0Uxe/WI6lxi+4dfHn51/4vDL69J",
-	"KfbmF6HttTz6yfj2y1//l8rvxs3vt9O9tve4dEPWkJ07ulNnyqgFSfLRh1QKUYXtBJNjUN4cJhX58LG4",
-	"Ido2sLDAOzBzNdMLvdIu4wU5EBr58zqzbmLpGMhPjrf0qMbXYGYQkIeb72C+70vwLxhh2QB9ti4HPfTh",
-	"ClU6HdjokkGzvgZbCq77uS5F6l0UAvNswlcuRxC7FKXwySBYpueussVYPUPUCwhKzREZIXxNOWwiiNla",
-	"ZeLIN4slbKiiKmWFQJpbkltFyDIGSBjXL9oQOc0LtqIcKwfu4cr15Z1OYaBI+sphqAhCj0mDWYKtUL7r",
-	"qDtqBNPSg5PqCNFXKPJD+hAEr/hoJ0RZDUlIBCef+37Ic8BopPSDQ2GQxThALIYeXpWs93S6J+Nf011M",
-	"kdrpkQsvhJ/iQSCUxcbZZuo0MDB0OOW+cHt4OHYEakXVPjptESfY0FPc3FU2eJP0kseOU9VDgRvgH50K",
-	"ka/jYXiHts8/easpOPdHo/XlAj82x6TNeSa6UR9x+su/jsRgf42yMLEWOLawzk0cXQMETt/czBhZVr29",
-	"S1Fdq5V4bV06iwyQu0FUdbFOzeUoHYEApogRUqKuwAgUimwUrUxgn4Uk8ZHI7flpTYOPGGcHo33w/nNl",
-	"oqpPDeKOWMdKubgdFRXTo2o7UBXFQTZpZHU9F2cQ0iUBIdkgVFRPMEFR2FomoFhhwqzWULN0rPAhs0ve",
-	"KUhoRT6qxNdPc2DKOKKoGat5xEp+OVY5t7xOWmZnpb5UAIJYAvQ3qhbEBodXV7vUSzA/RemqzsRSuxRD",
-	"dN/J6nMULTqbV8bXAqQ0j8bSmtb7VOcUO/ZmJFiSECTvU58V/EwUmCKRlwZ5+lgNVhI5GXauqSRRBASm",
-	"w2IvXY1Z44vmUZl7PlYNDPCxvyQyb9i4ovqernrTb1hUvmesTgWINisVfaxmczC8lcKWUsBuTAUlScfW",
-	"8Yp5xM1YUbkolAQMCRZijsOHzFNUBMjnnjo4ZAgU8fnSkOB8hhY7dS7KRSlJ4uDs9PeP9g4efHEUFxGi",
-	"nJRh8RkH7lcayl83VkJlOoRVsAHWwJYWS9VmBAqdCzj2TnZyKzrn1opy95g6Giuo4xR3hHysLqdkQpKq",
-	"kl9StamzpRVUqPCUzwXU+0l8AvgwqYSkXD/lUKosp7P3+ec+UdxYsXChPv+cKvbYqlT1vA5G+61E8zgK",
-	"FFK9qcvV3cTHGtt7IhYFX2K3ZSVSsOAxIzK4FbCitRu5OR1vnrbxnI6wpFH8YFSVojndQADAr1RAzWea",
-	"t+sa4UwwYIIQ+0tl6zPCrJwLxNP6CgElzoQQ37pkmNHvcPQQs5fRvJt1LCRoKnVir6lU0sxgPNAyzuJR",
-	"3RmcZUecgKRABw+AsoTXwW6Nms9bsQxXC47OIMViM5m5SHehhpVaNiohQuWb0sKTQ/YDjvIxSS17YPk6",
-	"YuHlOmvhWLnqX66GJuHXva6zcjxTomMgYtcdYz3jRtGFgWeYRGlSX3EnZQMqxc2L3WOXiiBti1Opg5dH",
-	"3SLZPBNeEB0cjka7wXCEB1Qa9t3rZ3tfQUGpgkgfXp09uo6Q3QSeoYKh+S4BoQ73vxqN1cBNHeIxzmDO",
-	"OiTOTMc76TF78Qy26PHJi2dUIE2oHPIdvJAKwxm0cQdyrELRTegr/U3qkx7Q9sBSwBfmrVwsRH7sam4X",
-	"2E70w5DmRYecCi5gv05/pA0bssdY680E7yRltlRLokCuwCYVhMN6kbQj7KdarwGA/E9BBNKXK5U3Q/XN",
-	"t1JhAcylgNqPqW8hxQ/4fuorRnrUin/YfREVSV3zJb6ODKl+GT82XyWdmp5uldHzb/nolMbPCfvLf/3f",
-	"2ajVQqhsF15G4GBUCdsdpvU/jFVYBCimhv3XvdTMszVTH4ez8oL/wVU/T6jEqmAjNqBHSBTb36X6mnvs",
-	"ZZQ6ciFK2ElIr+oLz7v6rwvUPhkmO2xQeMxNGLYN76vbhVjiJH8YXkRPIQW3zUaa27HrLbjwe7uHaL0G",
-	"9LeJyvdhN60eohXbHbITfek4rSsNB/w6SD/QEv6KpBfBZ3QP4n6lqS8FGWTVEm8Bigj0YKM4dGUE1O6F",
-	"nnKRyTkvKCctVuvzdA2JsEIqle4PH4i9++kuBV4xoGuV4So3PmukxgIu3/JvgaA+V9MAcWWFfCviwr2U",
-	"84zKDYcVwWwlGHcmFQoxjtNgpchmWRcgsktK4Gtgkp8ZBnc6UFY8WfS6iguG5pVb0twvIZEa7iuN1mtI",
-	"v7v61bCOTg6v2TspBiD7hIrNXEU0zTkmgNhR3k6M2seHDkcPvyBZKKoz6DLELlzlzd6FMel4dD+f7oYz",
-	"g2tMmdhhjVFKpHUcQOQaptsJYjbV0XeElcgW2IdYQGHBK1CeEX8zCQtNeA3Op9QCRo88jdzXLrUrNAUV",
-	"ROAN1FjwIlMWVxKTXL1KUFic/Uo47TG0iAXxKC2gVntETcizeBySpfIlSkJnmhDWqDKR8yWqw/WZwUap",
-	"WFAZYQCgCZesF623rjalPwt+yYfDYer3jWyCV7gKR2OVpulY/cbJMtRxRHUXM201SgV7+2zgWOsqC90d",
-	"KzjeideaSKFs8gNP+pNAExJPYcbKb2WiJDwvkhf7yWj4IBkNR/ujgyTZ+MTo4VfdTxwk+8MRPHEwetD9",
-	"xP3kgJ443N/HJ+j0+N8TfPnBKPlhbzQ6PFjzwP79+/TA/eTALega4MFJtX2YViTx/0Esd1bNdXAy8KQF",
-	"MRBZhgvXc5ow4qnWmPM+sMDSNqOJjlbNodeN6xZqVPUdW4iKQLMKr0NHagj/ulFGkvgtlD+qhxgkdxid",
-	"BubTiolZNyAv/fdetJf+hfd3lgqlipC8yY5XjJoNrC4Ecn748kzkRCJhznOpXgh1bmexQTlOCvjx4gtP",
-	"quvCCsuqjib0UUllKKczAHnT0erSafNjtWLDScgb5V5yrCGk8Hcb5lwUEVamy1awutApGg98uUtpvN7j",
-	"evNrh65DxWpUGnbaMl6AAt0HXnOmdSG4wsPQD9HjQqQdpKes1L/LJNGf0Dy/wkSW2ljGw0WeShtd5tiD",
-	"UW3CUsfRmB3Oiy1Kd613YHh64x3P3BsAj3DEXuh3JTVa5QrI7Br8M/Rdwz9dikxIDGhsErR1RV1vIOuc",
-	"VOquU9rAsNbT6k/4mV9DtS7nD6DDe6tX7LaBNfRIszCNt680b4/DXYClKFSgGauQodXV0PNiqLdimeBl",
-	"Ww3riArsueQVeXrsUCTeJxhXBgL8dBd6wpcmolbPJcgoqFG6QXjoYqO8TrN2Q4gUBku6CwWOqutEaIpg",
-	"Xz+JUUZj9USUQFvaeXU8pfnj4yT2RFRFI2DcjBVYiIBkJawVGIflaxykKZQyGav9YdTLZWOIayO/j1jq",
-	"JwVVmA7iJjJdFTlrOFlbj99v9xgSmUjlQDKtNw7jN5wHAxZjDpTb6nLpHawc3S7B8oRh5622HgxjQGQ3",
-	"7iakRGqEyztDhTsNlDUo8j3QuOLeknYOHHy90eUgpE1ezWlTCnLKiIJSLaFdE41cK5lzvFS47mRLtyTw",
-	"HDZAL89EKYAlrsmQ4+s5tRPlYAvYNiCgGick02UpMouGTG9jwK6bGttn6BdjeSmndtehurzbHHbSL7m0",
-	"nTWj3KJhG7RehNiCV4/H6ov4uDSyChyxFA4FLgov4Dh8GT8bJStgg6CNwE1JyNMW8hXQYKFqE2P+VgEF",
-	"b2ANA5gQrzaTEUwNEmT5EFpHXdP14sNJQIn8GqUIP7p1wgT9/Emg+OUFitNm8i7CwFbqVtFHJF24G/rh",
-	"UCRqJ6LI7rrXBipoH+4rbyXA84TU1OZO8J4iCFQa9o7CRKWj8ioTbcmiUVXO5ffy7sPaRjao5R1wXUyd",
-	"5z4KdQvUsQZeOpu7syzUteRqPHJdGu+zNhB5rNbCpdhmtBSsaJNpSbMial3yerk9BJNkDivnwgNIAwLC",
-	"K0OYag+FD2GcN21dukLnEhqrqNeBESIiiW0xFVxv/iy4Da9B1bAN0hpRTJFpQnQdis2Bp9aSUKWuBU65",
-	"egUu/RoVyRVF7vBU0BcWCwhp9Jyz0R2N4+DCYzJvoKRi3BL6T6CtBCRfkBJcvh4vDkgbINczbuJGHSf3",
-	"UyNGOVb17NZb3N0CfhAbuX2TqBvVL5QY7Xr+FSQ0OiqybJTOdMCiT5kNPhng7t4ekOfhNFodmeLe+ZQH",
-	"dibm23DzDZYC19G9H4OX8v0t2wqmNUyDyGXCeFZqg2W66b75wG4X+J2gkr9iSjhm1zCP0JVjpK5sC2pL",
-	"Mq+TpNK4KLGMZwCUcrOGb6yR0omKrRXUV8kK5MBpTH2Fsblfg3erGUUYRnQ7oYR3qSM01+aTmvCrL+7Y",
-	"vqW8dVpvTWFAkHVPLSEuRmVMJbDUNVe5njNshg0CIHv/4Ct2Jq3Zre8SWPMUYbyNq7ltRFYK65L1ocOv",
-	"dvGpYnkccCei9OB7+B5FQgfkHqsZNzMkVWRgLPS5YdKuF8New1DvKOECtv0LyVHY9zUuYNympFZ33AZA",
-	"eguFIvKv/fJ/EnLunvjg3WacDktEaByp6Bk2TE8HZ2IuCmFFb/pyIi70W4dhw5aOHaKsxv+N9ndrE73L",
-	"W+NSnblE5BGY0atyJbabU5tOzugiFU9wuJ5UXJ9R4AOEgO++e/6kk/0frq4WLcun0PpfRYpk2IoPvyal",
-	"ULm5y3TGxmX4WJPCuBkuH/mssGbiWIGdPJz/KBNlagq9AMwsgunOuBFxpALWoIBenMRy+gRbqv1mqX8j",
-	"rQ3+9XDhuUupcn1Zd3gwgtB7YJWlLjw410jLOFaBYKdP2OCSl0qqc4o9+fmf7+OXZJ/bRQFfK7Abnc7E",
-	"5YyX4K+A/w6en75kX3715WjvwE3nB2HsOSIS0Ey1v3dg6sYTtr93HzDrB3sHJmEne4cmYYd7+6Qw7Y+u",
-	"2ID8abtonxCwkJwcq/XCmqav05D/BLFVcT7n41aNATJ5FDKoKWOVhg6O2JQXhjIxX0hdkNmPMlTBYoUi",
-	"BlHOLjBlXugCzYcYODQVlx55DWGC7c3B9MmutprfQoDu0n6gOVNVReESU1OX0tSLMGSPCNXM9hHQXM8K",
-	"bJo8P2YAAlMZxcv7lAgqPhHojsP8CAPFS4TtW78WwBDwTOK1Yo6hJ5F8iNi2TCSrRT/0pRqrPz5myMjz",
-	"qhSGwCqNch8JK8V5VcA7XZU/ulVTHM0aPrIJaHo7CWo+Rtrprj7CbHujP3GdXoXXOjCpTxHzB/QjNqIn",
-	"TCq08F+sBRbDwbgFTOwLbjt6F1fX9G71LfT9e33J5lwt23cyaWUoaRLQhEJubUSk143S/96dTuEgzqZw",
-	"0EimcPCRkynQfVpnLRalhEWBq+tnlIRgDpXXpPFTkoXbF4ueAKDASxwuF4G/0FhPCX1YTsxoMXPYnCbn",
-	"vasq3SR13WXFfdS2oZcG0ID6TVtQ5ZotJCwv+SW5zmpZB6WUo1h2cOHFZIQlVobhLYLRaYcvSCYaq0gU",
-	"onUOGCnfGooedCsE2rQLgWGzPgAe8w0UwLtPOoQRpS2NehPzW1ut/xMP/MQD/xvmgXLOz8U9c3H+u6t5",
-	"0WSAHdEkq8wOScMnNnYXlb1r0kswHaTdCSMqdstcCfoWWVWC1RCo4pngpSgfVXa2c/SnN+/fhA7b9+F5",
-	"FJVeUUG9qGxbBPkY1Mq42R3W5x3e6gjke0a5eeK2/EUjD3wE9wQuaqIm6cGORp+rC1EaweqM71HJ9GbI",
-	"ftxe/XhXo3985OsVwVji8uLNjJrisuvlGoLUTAeVBKBBhPsJfDOrM0k1enHutZVuukugJjUuqc7+0i5g",
-	"E1p/l3U0TFmoMZWyy+oYRAtZsjrhNVvoQmZSxMvqXuhq9dVzsmrFj9MXHU+/AL+OMCE1Ff45F7aUmZ+W",
-	"NCzXWYgUbAQH0ra+ef//DwA=",
+	"7P1dbxtJmi+If5X4q0/DVFWKpmS5qiyhgXH5pcvTdtkt2VVz/s1qZigzKMY4GcHKiJTErvLiLAZYzLmd",
+	"mwXO1QJnX657gEVjsXe19zOfYfuTLJ7niYiMTCYpkpZc1QM30GWRzIz3eN6f3/PDTqanM62Esmbn6Ied",
+	"ieC5KPHPE2HL+cOxFSV8yoXJSjmzUqudo51TkWmVG2Y1u+TSsjMx1qVgJbwi1Xl/J9kpxfeVLEW+c2TL",
+	"SiQ7JpuIKYemplLJaTXdORokO3Y+EztHO1JZcS7KnXfv3iU7M17yqbBuGI+q8kI8e7w4htcTwTL48Y5h",
+	"MocuJXw943ayk+woPsWG85VD+U+lGO8c7fzqbr0Kd+lXc/fNm2ePd2A8z3IxnWkrVDb/nZgvDuQhywop",
+	"lN3LJtoIxd6KOetxBu8zaRhn51rnLJtomYldZifcsil/K+AXWDAp8qGCIQpjmeFjccyMEMxOBNMzUXLo",
+	"5Y5hUZ/9ofKzpf2q5xuNdQ8G21h3fvVcqHM72TnaP/gigX0In2HVrRUltPnHPzzc+//zvT8N9h70R0d7",
+	"3/2wn+wffPHuP+2E7TK2lOqcFkcZW1ZToWz3DsnwO5O5UFaOpSgTxg2baWNFzi6lnTBpDSsrZZbtYt3J",
+	"trv5LHSOwz6p1LIzVVbqdk/UO3jfzLQyAk/4lzw/oe2HT5lW1q0mn80KmeEBuDsr9Vkhpp/+o4GB/rBm",
+	"j6/oLeq0OdUXvBjrcipyZubK8quEXZZanTPYYqZLxtkFLyrBdGWNzOk8UrNHbOrfHaq/P335dcI4oyPB",
+	"LieiFIwzVU3PRMnORKHVuUkYV6xSb5W+VGwsRZHDK+7EMV0OVcnVuWAXUhfcCvz1+0qUcxZoAd2bXAvD",
+	"lLYMlmYO9+BdsvNIq3Ehsw+6enhQhNFVmQH9MZZbwca6PJNAFfFHutA9TkSKleJCikuRM16UgufzhPGh",
+	"op/gCujKMs7G0iaMh5fhB1p4PhVM1ncbaYyxsiiYVEOY/vnE7rr1eIrDyIX60Ati9VuhWMGzt4aJC9g+",
+	"k+mZYIXEmy4VS6/2/NXZw99M2t9BKgIngRdPylKXH3LYvmMmoOc+g2mc6XzODJ8bplUxZ8Md2XhouMO4",
+	"yhubDMTiXbLztbZPdaXyD73uQJnycBzrSyKupLE4sld8Xmiev9b6OS/PxYceIK6ouMqEcLfDiPJClHcM",
+	"y7Qay/OqFDkr5FTSaE9FeSEz8UbxCy4LflZ88AHn3PIzbgTLuIKVPIO95tlE5EzpyyTMQWYCWLyZVNYC",
+	"+cv1pUqQoPXGSEMvS2mR6UuDrJCrzM3eQIu5O2NnIuOVEcgHQ9/SDBUQVq7ysznx/LZ4thfks67Juqfv",
+	"RpIczve11i+4mjumY34WMnHHhNtTAu2UhukLUeIKuJNwU9N9o3hlJ7qUfxIf9Gq+kMZIdZ7U7DIJTFCX",
+	"wBD0W5GzM8FLUdKqtCb97bff7j2s7EQoC6MUiwJL+iW+nRKr4IqlSKNSxq0t5VllBeudPH3EPvv8/mB3",
+	"tVjelu1o6WalzoQxcAmfKCvt/EOu4LeiKPaclCLVrLIkBZyVgr9F8bkqBNPj+DoeuxUwKZJFw+DaDpUe",
+	"j4XK4Yqi+FFT8KoQjm2+UaaazXRpRf5C5JK/xvX40CIFXok7hj2iXvdgFHA5gApp1VILGM8yMbOmjzKt",
+	"6wOG8BC/B2LzDJYNx57nEt7hxasSGrBSmJ2jMS+MaI+kfpvZSSnMRBe5OcaVxDEUYmxBLmQW1RgYklDn",
+	"UglUU8a8KizrmQkJe0VBrF8rfHAq7ETneBRn0Th+2Dnj2dtRxotsVOjLkdWFKGEEoxkJduIqKyojL8QL",
+	"rz3S+YXTwe3O0U6uK2AUCag59MD+YJB0KZskm8KW131OpRrNuDGjcckzWoYfVra9dssfZiYTPdUmEzk3",
+	"VmbSzke8mE2uPY0P8aF3CUk4sOkbvgey3kiPR2O56ZtTrnJuddmhTz+aCJAgL0GbZmMui6qkf+moXYgy",
+	"l5k9xg/aTkRpGAelI7+QRpdz1NusmJrrxoL9fM2ngsZz9Yxe2q/Xl5cln+8kO5WS31fC/Q675SYgio1n",
+	"fTUqze0eBTjKhbgQhXFKPz16P37vYNHyQi+WI/N9xUtilO9x/nVlCynKUab1WzPKb22yvh9jK1Tw/yRu",
+	"r6+yUmbD/b4QpRw7jrFICZrH/sdfP/4RtO7oFRL+eJmz3rNH39x99OibXTblcwa0lfFzLhUoH9YMldJT",
+	"CRoK6ux99thR4YNBwjhIQuzNKXvy6iE7/Xbvi8PP2AukwuyLwWDweKgyXsgzx1Hi7umKFfxMl3hV7xhH",
+	"vpkR1kDHTF86a9QtrPi78I0++0eRWVjQmjW90oXM5htytieolQamBnxprMtMJJ5vmZpjbcyiFqf6/gxn",
+	"E8ayxtvL2cQaL3cwiTXe6mQRa7zXYBCb0/MGBe8g12uNoEGs13mjQXq3orDrUNIN3mrRxTXebFK5NV7Y",
+	"hMaBjEt0rig0GMNAS+6keIb18oiILSdfKEpeO8x3sebzh3ijWkej68AuvTfLr2OyklisJgTtc9I8iYv3",
+	"sLFn3Vu/eIziC7ZyD7/rosL+eLQdIUaeK2wIdAdc4P7OSh4w6N+PeUB/MBjsd5yxh4oXcyuupfZNek0W",
+	"+/X9Aijo2Wut+PBM+0BhV+79zhWrcmmfXHg9cv051MyhpRqDInzJDcu1EgkT/fM+S8tK9bNScCvyNGEp",
+	"Wpf7Y2kbn/lsVuqL+JtSwDBFnvYXXTwJjEB3uACB0Hrdmwy/qJtzaKi7nRYV5VbsWTkVXc/mwnJZdNOP",
+	"GS+tzKqClyZhUmVFhXo99xb2Ek1L3GjV7/RYxdvG7Y6fYLITrp/rfek+PtfnG+6iuPAO1rU4WXRaFlhZ",
+	"awau5a6xPuIVDM8sOTxkwDZAYcFLqXJnZjhyVgW8w17IjOy0jiwPVVZKK0rJ2bjUUzarzgppwEJ6Xskc",
+	"Xu4QH3mWlSKXFglNAm7P86qAH7F/J1yevnyFlgU2K0UmcoFN0eayszm6hngBVzZnM1EarYYq+J8LwY1w",
+	"/lG/0gunayqV1/UWBQWUIjbcXtjCyop8caWfwuPgFSPrRwaNs0xXRc6cXdm/i6ulWAq8QOQpbAb2hSuT",
+	"0pFMyS1xOZlHR/tM60Jw1bw2C3NGm2r3hYrEYTwKMCJgPGhTPGaqKor2DCYcjopCR+El/m3DRLopPrRC",
+	"lnzSC1bLe+3jKkDNj+xHzoGOZnUaUS4y76UMBgI0DlxKI9zEYgvB4uKtwy0aIibtVLTaUWPkiumcSimC",
+	"5ZFuna2tZpmeCrxOnRTUwL0BCWTJPmIAgX8GtmYquME7i2phvJXvvWHd/K8eoT9xYZmS+pY0ZQ+3VCvJ",
+	"br3uXdEX8KNnRRHtmqGGeMTSWtoDnkfiXpoMVRqJevBLW8qD74KgBnRKagXfBdEMGykF/HIhRl50HZEJ",
+	"PmFpkNTwLWFkXvFiBNIafOFEMoOtTLXSViuZwS95Kcc27bPoW9YLawZE0B2YXeY2AU1j3p9sNRAWODeZ",
+	"LeYsNEIeFlilS12+BaaJbve+7xA9Tn6XGLdMqnNh7BG+osRlCLcxhZ7VvIGuJVd4mk8fB4M8+qzr8A/4",
+	"lZMcd8ewgwGbamMZkHhlh8pLJdSHSWrf97fC2HOwgZCYghfHsJ4RYqjS3z55ze5e7N+1pVC5SXf77Fnj",
+	"qrNKFcKYmHQU0qDxgnEzVGFRE3cX4eVg38arMgaZAoQbxfYHrDXOoUIna+L7oQbqreohUadvS0HeBdYi",
+	"mOC3T4PeM5JqBLJR6klxczNqSlxWyrk40ALkG2BTjly5MMfRrO8YloqrGVzXcE5N6siotEPVHHJ9vnQZ",
+	"1jLBUSPNhTV0dh9VTZdoVE1dqkOLivUgd712kp1Y8Vlyt2IlCJ+Kblat6+BI/NnfSXbwkBORai51RHIc",
+	"sU12rvZgZnsXvMQ1hikiEXoBQVNumvSFnyt+es6zty/HT6X1X3y1OGf8/kuevX3UmDd+fXIa5k6f3QKc",
+	"ujE/cdPHH59Fa+CepoU4oXXA717Wi0HjjVYEv3jslgU/+H7MM/UYV4bia+COkoGwiwB742MWPwiyOVHk",
+	"cOcrJW03s4ltgvX/rrHHQtyPRPGwgx9e6j0jc7in4SlSSIE84eG54IVJ2KB/H+jloP/gwYNrddUHDx40",
+	"tNX73aOypS6eA/czG5onTyficsJLFLehEfKEG9Z7dvqSff7F54O9g13PxUPMEMQKFFKJfgfT7tIlRxN5",
+	"PlnTtuPeKPTlmi/g/os1H77kpZLqfJMB+VfWHVFLTHHDa7bTGkhj1klj0TpFE9qqk6roFE5q7gXyXi98",
+	"FJbxop+wR4VUffZoIqZ9dvA56+0/+GJ/lx0+uLd7xNL9vQOTDlHQpmC8MzHXKmc//fkAGG3PjXv3GB69",
+	"Z1L0zoZn7rHTx8csPYBGmL3UwNuVEVkFBMU/Fjg1tojn7ZilJ3uH9A6LXkmg+aHiZ/pCsE/xee9GR0kb",
+	"o/0u2V//+V8OqOfDvX2TsrGuSrbY81CFrvfjrvcHVymzQjVecc5jfBqjEfU4iB1NPgRLtpPswHLsJDsH",
+	"9Amms5PswHjgt8HVmhQfNnWfWoC/7vm/DsJ3J4f+r8P98By0DyejKk2X5eTljH9fCQjhM8KCHGF0yXpw",
+	"jT87rMr6as+AcqhzNHBGsbv39w/Wit0d7X336X/qUiMwonrTkABGZiQSe/rs2yCFCA6DNE2l1j0M9qCi",
+	"APE202I8lpkUyqLs2+TnJiUtN9MXvJQgvKfo0hXTmZ0nJNrSjTZkZVICWodu8DkgewlLneKHklMKDuM0",
+	"ce2iRxm156EC7RmPTJs4EpkYcdupttVCFyi8/ukmy1hl0uK1CXPhtyyy1KxUP/1z8A7OaTPnSJdjJN6Z",
+	"xYk/U2yqc1Hsie8rMtDrMhflEQOOw0v2h7NBws72v0vcFyNdynOp2B/wu+8rnpcclFH3XMLODr5rOOjX",
+	"88M4c829ruEvFwIedbB+2MQzUkVy+Ow17yASrOVOSHbqo9rVr/8NhPFSXvmO47VOmPnpX3v/8P/+n//l",
+	"23/Y/ev/+H//9H8lrNSXBsSm6Dla78aS3djarV5YsiOvvg4ufpmbcONVzozVG92MfLzYg5dkWS7OSyEM",
+	"rOC4FCLX04Qp4DFsFtlIIh8bRSKNLkRpOsVVTBuJHN70PJGVoG7B3DAWm+zq+Pzd/f6gP+i2kTvvt1bX",
+	"XcMn4cF3yc644Oemy2aYWcP4GUZY0UBoeM7GpbQ3ca0d6vJU2qcFP++6/xPBL6QwlrS36xpC3ed0wku0",
+	"gMl8vZSHJM7g6LROBqdpcykeS2OlyizdX+NVijHpEasSiZz96dqVcXI63AZUlDuHRz+NwAa9/FDRQ8w/",
+	"1H0/gLc3hr7fNXQkudeN/AU+9C7ZUV3Xx3HlesFYDw8pqERaCW+BqBQaIK5dzJmWnfyBAiqC7cFJA4mf",
+	"ri6Z7zVh56WuZhDwOnfkWCrio0bWnGX96C1Y2lcwrK5T3fCyt4NKIVlC5E0qC5zAihIUWRxMryJd1vmo",
+	"G9xtd0sTN1rbrpvXCT70LrJqmHwFfQxLn4sLSUM3vfndq93EC83/9t8v2W+YYpc4b2YyXohtJ4BOmGtn",
+	"QE+55+EujDSSeF4UL8c7R39Yh2R815ZAX5XC4E4pxhULBDfctyS6cJJco6Vwx5As6hTcMFqfaLWE1I40",
+	"SL/49MASNo+O0oWz/b7M21huq/VuySk9Gvm3m9N48+jNC5bpWq2qTTYNk04w4CwQSC/vjNaiXN+4pwMF",
+	"c+zs2vfcY2AHwMM8yrjKJQgXS0lTeALM1pkuhbMsp7yymtQO/AzKxBUQaGwYHcqFfCtYD3UQOHVk8IUl",
+	"isSBJS/vrk3GiBo98qPsomV+rlqBr7eT/3ylL13nFAuLlzx34ouCk1ZIA3KNZqaawj/K5+ymEZ3pFm7C",
+	"rNa/w9+GVxYv8mufSChYBWNCe7NWgrn0WTRwu+2hW4wx8cim4tGM0C4t8hsfles7m2hthEHybyfC1Lpu",
+	"wnhhdG2Jd5yfzgBXaAw5ZvwM6ZVzt9UH0WnKZ4LOY96aVZjujc8rGio3b4mxYed/EqUeTbjKC7fJi4cL",
+	"HmkSA0M5LC6PlV2KEkwaM+uiAUqdVxlcI6nGUkkr/Pk8Jq3er4sSjJfaiOtjNSjxlgh4kNYWZbOkmS3s",
+	"1W5H+7xsFZ/q7tXvojFeZO+6k+1lbGnWi9ykoUM22T3qRE1PCHQQ/CuR0htEs2ARCJKvFzhq+hq4RtIw",
+	"dzSUvcgasaBMddo/MT9fPdVldr1RqWVyWRKQMNXkMMRDinrQ+srkGTeyM+Jl7qIFSEAwUeivVOAPzU0n",
+	"8dvKNOMNbNdz5mo65eWcVMiZLIVZrm9L0IL4BVGkTIAY3fDvOT8F4+ei5SPQSixdwCUyX6SacWNHcXzg",
+	"+nTpm/itbtJUcIxaiNsHq6EuA3viNm0GLnR5Ohbs/LgD/jQkFOcVrXDXtKK9XnrOn0uzaQDf1gdoA9te",
+	"6yi1BQglruwoW2KNJiu1l/zgUTarj5DTIWC18Ov+9UemaytgD+JRrLPWpNttZqZ+qcSCMlojTOSSnytt",
+	"rMzMMePRR4x8C0dM2lYKNespTeYgXQIrL7W2KBaA93ov8l67B8gbOsBHvAebVIRVeW/QRpe+2nC/4qSw",
+	"X+KzQefZUqPL2r7dtUyfGEIsKZu5+6VrO/Zmge7wKdLbtmw6GLI6zUwlP992zCEaAfeyO8J9fzD46S+9",
+	"1qaivbKx1Lt3Gx+31sdJZth6PiS9rbnvUUD5KO65G1GhmDP/giF0Anxhy5mSvLXMmNM2daD6c8wGdJ/9",
+	"UbuJODc6W+17Ey1lGGo4xNE2LVnD6GAu3K5kgUB0nsPoQi0lqKfBYtC2JWFoLWKY9NnDOtIL/Wgzypse",
+	"ke0nPQ6B1vDrGChdP3K/Np/eSXZ8vBQOm8LM1w23qcf8ilo98Y1GPz2s24++PQldhck79rhp9H3DKXgD",
+	"nr6GV2W99sCTKfJR7fBbDMSvTU/4kHMXSPLHQgBmHD4YhXQ17RQLPbcFiRuz929ma79JY/k16VfX08xN",
+	"LYjbG+kWrWxbmsmcVr+mCeHDqd2xftuhojbP/QqVtYviPZZF1W0r87+wMSZ+IJSUBEUT82Slcsou64V4",
+	"zd84ckgxOP/P/8xy18TuMdsnHkPGnv7WibBrhLs9iX2MG8jE1xnO+x2hEC7j571yeFa7jLxwTjEkNBLP",
+	"qU2DKm1ArpdLfqUg5A7RlZi5hMfX73QdsAWPE9haRpR4BJ1cq1jXj3b81PCbrIVSGM8gfj8yELkeW2ON",
+	"EqC6r1I4eOtpZEu2ZP0kvMZeLep3/uQ4jocdJGx/DwKo8k6f4rFDI+t6s319G5dytZ+289isXMAI5m+D",
+	"Jawv0lrWgNZ2NfxI992clqc/tY/xepae1+LKdlh4yOomKM3AIReUUr0FE8+ZthMmFADL+FWsLeqQHGwo",
+	"ZQACL+FvFwHAS+FeDVJ94y7dzHi9+xx6izpq7Xj7YnXtvY+86AgNBf7jwjx4O8jDxFEeLM3RpqBckMaI",
+	"mGh6RKGh+B1DkB421ZhexBWb8GJc52daXngHsMucaMZ9pBBDOhaXo3D5zGisy5E5SCEO9a754wF5Y9Bl",
+	"Q06voaKecdiQEUaZEmHxcBjNFARMbA49pM3Qzc5J7iQ7ncNaU4lwy//YNY3hK9/6ht2PT8XlSWj+qS5P",
+	"D1Bt+Erwwk42vKu1wOdnpd/SAcnnaw6Z+n35ux0/hBN6uX36XFddhy6ipx3nTrnMXa6i9JzEO30Tt12J",
+	"j5krwYM9K0QrDPWzw7WiUL9rg8kOks/uveuMS62hZF+VAg7+1hQz0sDWZzvXeCMIjsjpxc53wCRdiGNA",
+	"BWxzkvWkpGb84kotoX4SNAvck/W5Qr2kp/hmG/PoGsbQzpsO4r0fR+cxdDGVGwqs9URDVGYdWREbzSgK",
+	"OT3TlcrjlNmEpYW+dDHFwD/SECXcYX+lt7vtkMszE9a3Qq6DkaIvt+qlLYFgwoJLYvBSrJ9f1wY951bQ",
+	"cVgPJm6biGk6IMg7fDoqJabBjcD0P3kh8u0uz1b3PI80w1VvBQ1yLcNHW4SN8J1Xx0r5Bzv17vqe1S12",
+	"bmQdlrnZXXs9ieUHr5AVvMRcQwMtdgkRi9doG0eC8QNujgmsuLGITngOJFNgBqt7gBeFjzP0v2+DBdM2",
+	"5dKoOld5m5yux8KKjPyaKoeIeGWDz9HldyUU892OtDIImTuzLM1KaWXGixFaIFIAlfbnYXdVVndri3wr",
+	"2eqEPkg229//4vDe3gHz73gwcO8ltO1kv6tRtq0LqjG5bYbj1yJh861HsQxxBIJf7ETMKcDFLy46+i4n",
+	"c1jx/hIAE+GyyLqBF+JZOSWT0UswTJofrOq2cAqF7nAlPnv0Ffv9AQuDo/OXsHv9ez/95d//6e7p1p19",
+	"v7SzrhOfsP3Be3Vo5PmUd4tr4WT8+z/hvfKHg65UMywrxXZGGCUA4sOauR/RW+urnKfw0pf4TncoxL//",
+	"k4uHU2CtcFFou+04MhvlhKt8eVxi73Iiswm16O4IBQyfAmLWouSQ79A2LtzHZBndWDzkKyEcXgST/0Yi",
+	"hkdzuBYypw0MWIsHG+Du0AvdaVKxnL6Ol/z6/BnEBHCmT5CP3CsbKA+uj7P52vhM7pVm70tIWNTcghG3",
+	"FcMHwz+XF0ItSY9pIQ8sNuis1FgZJPXuqTQhePR2pOU04A6HFh0KSAzx4jVw/92i/u1A/vAGjfi5GE10",
+	"1RXn/XXgsO6y5dpFh8C8tgW82SzJw4GfLEzAe1xpZABpMPaheIv6zPpetW08R9FbIz1bK+opvP3SPb8E",
+	"WCbyM8Vbc104px9FK2QyEIYkpjDL17L7mLTDJuvLuJz+bRFARmd+fSJGHV0LHOabXT7WLW0vW5Bs0j7f",
+	"k2I3rBnXWLmb1Hw9Bh7bX75blPIpjXTQf3C/30E9rzdGr0UlPRKWLypDRqmyUsTouWK6snt6vIeB5guQ",
+	"MENFMNq9NEQDpJQ3E+O9IMkl5ycC2vRqerzbAn2JYJzen8qCqA3lgpwnNnbj+PkaC/hn3vwGZjcSKG/A",
+	"CfvF518cXgutvRXJXt9ssIKWLzsHENwBajutD0EwQkk246N0wOtyJuLkKG+8DACreI93u1HRfiY+4ChC",
+	"NzPoovmBcnTSM79vreIZlNWXsjn7DTsbsE/Z2f5Pf7k6Zmkj3c/97n4KOe3pUDXfg38PfvrL1U//SoAt",
+	"Xxx+9tneQevKUMs7ifvDdbGT7IR213QT4Jye+9aiTy99i/jd7+tm3yU7L7FyRFcY8LcTzUrnr6m9Asfo",
+	"JAhn1Bevm1MCDGIGpn+XtjwD6xaXa7oG/g59A/sHn3c7B97XJfC3aWdfZV2PV6SO49zOS3IzaQ+r8JjI",
+	"eN+EYwCetS7cAjKP9QOv6Pmtwq/o1c1jrQhLdZuTcoJvdmmdS0LBukLsRy2DMb7aWoj25FpisZ/BNdH5",
+	"CwPf+Causj42w91JFEAJpRm2tYBLiryNcEnrAH2n5XrzIHxzqX1SfAMEEaSc6Zk8r3RlRvB+um2Wd+xf",
+	"WONkLwGBSBFMaYRjA8AcRF2qP4orW/IZVUuEz/R0oQmS0n/6Hn5S4hyjhfFvjXMDyaJuuTntoeo53Kc4",
+	"169zyUDhbxhgj9AYMFQR2OFuwtJKOSfUyPvzwPN/ijAh3j/kzl7NXDJelnMcMW4tevOGKlXajrxJEbYh",
+	"xXgGlhK1pQPpxdRNA1sXHpORA3OlFOefi94Z1TGunRbl2rcJthN9ZrlUIWU3HUtRFKLsTsidCq5GGwbv",
+	"ew9Jl3EDngFTUQiyiPI6OQWm59eDVrQgGhcDD2azUl/JaUMzwWc7vbu+cIm/TlFOG1xxYSw2dRNB/TLv",
+	"iOjvRpy8wHB9nwUaFrW9JxEVWDwRq2mqExs2o6l/Sz7N1Z7MV6WYcdqEUytmm8KUKcYL+X2lrT9TM14K",
+	"BTJrLlg1Y1ZjrBWWytFFNRUJlTWjD0Dmps/rhLFQCYH99GeIB84sVwBY3pXH5fodTYsNCxCtUjh9o1YX",
+	"ruENG8Cp3uyYqMktR9SOI6kXbWGy0eBbnXafGyqst5jd8vQRe3B4/3PmCvYx8lGYxR1c5gKkUgvog8EK",
+	"yQ6ZWAZoggRljZnQLkpq0f69BD/kqcaAc15IV9/QncauaoUO9H1N0RKn+hRe7mR3qs7dW1qEkM04YRV1",
+	"hCfjA04cX1XFMP2HPaeu7T0DOcVqBlvsEPFJRqDiDfcHg6WY55Xp7uer169fMXoA4Usa8bv3G1ith4NO",
+	"WCMrbRds5+lEl5YZShkKlMSdH2ilc6j0xWK83ZuTZ16HnvsIi7gxz/OrUh2hrPNWiJkoj9wzR+6EpP2d",
+	"tlq9Wi3AX/0co7yKFU66xsE5+mHNC/Law9lLX5uzvzQhQJTd77eO/BHjDEqLs1f0EpPKagLv01A7O71b",
+	"SCXM3WE1GNzLFP4j3KcMaLn7Kh0quJuPTr9B6T+lJ6T79ci9zqfCPc6obG8oO06C5Op19vNaubInHvtp",
+	"A272bSxtJ3XCr4uOdgviA6TJ8I4VitUe4nXU1eM4Oyu4ehvDgUUpzlYg9PluS6cqXeFRSrhvHoX3CYy7",
+	"8WC3zvVG0UyYTVNIwLbYoY2BpLeHxZxTOkj4BVjKU3Y5kQXpQVHpZhYqN2OF9lJkGnMQetiIYVwZCJa+",
+	"P7jn8IiiAsdtM3vduZM5seMN7ISwGN+69/3nl9hEnW5hltFynnvFwLDeRFs/L7PLCn6+52Qk68pZg/52",
+	"rpnVPqgJy8bwLQDeXEx2vZENS9pnh2H2HZBY8cqtu1Cho9Xx1mR+XnLmsPwMmJK6zhAkqqITkxfxoSHL",
+	"RcNofwznC9oiDVdjKKylguC+/gDIBJQjUAfXUMach86ooy+PWQqHbCKKPB0qf7/rJF+fmZu4FhJWqbG0",
+	"FIqkS2aqmSiNyF3gEx+qtbrt+2n4hJJQv0Zmk+YRj9aGEpzd5MHK70a+9jZij68aDbovT+J23XffhuZx",
+	"B1tnbjPiIdWoMivcNXRF8HrAfip92e10Kfj5yIhMq3yJm2zMSzoQ7ExMpAPhnpUS5BUModDjGrcDIyOa",
+	"cUSuDPkSwPuVRVBDps1i6oy07FxYssDhTHuVwrL5sOIJUIu6AglahKiiRKCUCSFV8d0lUifuTUfoiHZe",
+	"QqnY3p6nwXtIKKuycIxzvyEduuyFdXO7fN+J3+Lu619bZBbT1qJKKD4Pred8c95C5ywexKozXZYUXbW7",
+	"Sc2EZtba3uJvCzt6Euv1bWSA2iDkoc/eC7QzLNFmXhEcZFVsV0BvhZdjk3TWjHde7ajmHuKak8Omz/NG",
+	"fT2ETgifY+KZojRB34fc3G6z3xoh1tcH227oR3krVR4zVJpp7tQJMcomIJuuT5vDLj4KDUVfIud85JsE",
+	"lQGWDkzTxvPU9WI1Gpx4CSge/OZ4lhN8x7gVrn5iB8jUNTm7xOnCSNcfn/e8uH0J2yqV/eywE+R6QxQC",
+	"PJSjJUZuI75fTVNRYxCQtiEVrA7C/YHMSlm1WIGwQaKWj3s9fxaMyGF24fnzl6+9yAvnI05xDisazz9C",
+	"MljpNGvctCW0virsUyHyDwAHtmH1yJhWdgF+czOa6nJJhOBKrLBX3BgM0DQSazQ4aMwGahgGL/tUq9X7",
+	"7ObV7DQa4DV+yJOARrxhwouLjMlF5pCDZwEiIRNtyRge7cqmWKMsalSQFCNwb6AsaibXQZmnlXnsn14h",
+	"tn3dANZrhvFuhvMWxhZdwmuABVrDjNiM03ICaNDa/AUafBheps8nrol39RfbRJDcxOK/b3Z6lCsPngya",
+	"aCsa0Dn36yIo/eV71bkrVSG+kbqowR43oG6OqC4xJrjoaakudHEByqRUlAa4mRTp+VqbsrmzsqQIqydW",
+	"UCGIucpJCYOjHX6KKwx2a2alK/N0TQBRqAjVKAW6+gJh02ES4b0kWtTu7VIb1/IpKwVkvC7UcQOoV1tF",
+	"DK1TY8SX3Nm0rMgWyREzbazI2RKQ8w1ROU8qRZWWOk6qn8GSMCkLzAjeaSyAH52Kkxv+kShtZi7WrmkF",
+	"WL1TbsG8vpPUnx+dfoM0cluQr/U9yXVkxKbvbAALppeGOr4Hz9s8HvCkigIBOwyWFGMQanZ2H4nF2p6N",
+	"CqB5O0mMLPbrh780Is7XmpavfHBtmsFmqGENhK+wg+G+LM+4iOdQb1JSo8+uliQr5fXRDwnuu2gkwt/Y",
+	"TJQejWN9y8oKarPuje7auvUXcK2qcjeA03HL6HubBn6uTttfgLVbsnrb5tpswag/JNWOifCqt0Jc+vtQ",
+	"2JBF1LYsbkN2H+m8RtVcTn/vmPCjq4Ew5bkYKjQ5Y2QiVKf2j+yF93f77AlEetCFBzCD0PYd8PLQASJz",
+	"el12v6NK9JGzwvi3KUyy9Z2rhzPD2CpXDwdNOFIxwhmYyXLOuB2qNDpTrnxieM05eOANF1blUpb67LUf",
+	"IwZ/1liji+W3fcnpOlWzGau5wYGMYM1am4yWnO8r4X531rsViVVAfIWy5Twmvjh7DFVfmwx7vthxFu9v",
+	"FvofeOYKDllPaClZCTHpt8zVNo1+j+N1O3W5DSycC4qUM/GtGc9ei2g351nIl8KP7i8TPdcI4l1iwW1E",
+	"Zm5SYOp6ya0LgCaa3crl3ApT6COiD61i435sqt+7mHofJy9yxs850JHIVESFDi5v2gywMqnomkLynfHe",
+	"zWCFc35BBTAR5YNC/zEae+t0jW0QuZumhW5DgaNe71XzLtjMFsPjWQYmjFDYbjm9eb2YO/NekMdrkqol",
+	"aS2vMU7Bx7ozfArEn/TVy9PXKCthv+buDzJ/d7d+0qRJSADxCSG9+lh0FJ/GVObFdBFIb5kIX/W1FOMI",
+	"IYVc3McsbUXsh7CV+ZaJJV0uCLjYdwyTOcZrkIyHWTXgakO13jhD1Bp+tRtKVLnxTJPVJppmcNCteFVv",
+	"gi/esLt1IU1mG/yj2Pl+jfmUFsX5u3XJKMwMVtyHB2Er6xtWb6CIZEIxYCxt/LRYGN5hOIa0McRxlGrN",
+	"YnEb+32b0nUs8ayX6bNJDlH7+sVZRU0nd+uadOz+ZkgksWjxt6garLpfnfnTG2kD1LvZziCzqe2iDcB5",
+	"a8nip5meiUZkbKXMUR1TjEtzBKc82PyO6hou+VSqNd0L2NFJpYyPN6YvqIMTah+/QrObCSVd8LuH1BGM",
+	"t0ZL6+Sf//5PnswQzFzv5GDXoSmy5y8fs9/UmHZIQp6//D37TY06BzmyEGUHNU+PsJnTx7XX3oN/21DL",
+	"C8Ppe5iXasHJOlShmHaIyh9jBH1KwfkOwxqbN3f/+s//jRArfePQtp2IoaKnF0P2Ez8o+KeuSSunILgZ",
+	"F53fE99XAOpidRvizUd50psi3z1u1nk9ar+QDFW9CjxGygfS6EZw7Euj9mLImCNWr2UUXFxWCtOx25jf",
+	"wIIQpRxfigILRQHrurB+zThh6H8n2fEdImhd4/lWJc01D204bQ+p/fqLL6Gn07zx3XPskjBXm7/4styn",
+	"FL4WvCQ3CMywBc7qqrIYt2E5qPnqdeWylhCrhhHtAxgQFhb1Gvd+9HC8vB/UmnBTi/zCGYlv9Izmy36g",
+	"bPLROERPbYykeCMauriacQQkqFQmSsulsvM1R9Os07reaHwU7TqWY78fv4N3Vl7eQneXiZrVKdSbgJE0",
+	"0q47xC7vBtho5uElYJPLNDwqZtfaiibPr3poidi9i//UTBdeoVhqstZbsi/4uawL6FqhQaS75lFIAl/z",
+	"gCwv3+XxjTdHqM5FHQu7oLVQu0tWko5JNMVWHdz4sGyoRnQd2Ebu1ViUQmUiuNlgGFZnb0dG1yoTYNZS",
+	"/6N2BZ2VaW2uzRPfy04SvjuFTqLPz6ndjjFvA8cY+ww38gn5Tq+HZgxdrLPu710iYz0TZczAFgyVJ270",
+	"3t/nrz1Ui/R/1+5I61yA3o14x/RjtrEJ317gJzcEcrCMQXTYZ2sKdMcw/x6L3mNvEoqXbw13i+yrn435",
+	"3MAZwcWqbzvzxYPQX+wd1Yb1FigCAlLu9iOWF4HNHQwGHXO+IRZY6+IHg9tiiOuf9phLXbsCDa513alt",
+	"4JzwBHPVBM9B/XuDbPXtFmfV88E1PSDw9C0RliWFBVrrQL6OY1aIsWW6sh4KoN3Lhviia2OhNLl8dNO7",
+	"mACGiC8GOpdCMCuuaOwESIIgqRmFJIOtt+SZFWWoLWH5WcIKqZzfATY742Up+blgpbBVqVrojgfeKrUE",
+	"3vGPw+HVYLAH//0C/vMl/OcR/OcJfLn/dDi8+vzpd592ojy+hljcLUPxttAS1rfpL4XfNmC32kAWgMe7",
+	"pGuMQl4S/SmyUtg+O53oS8XQ8gOa3jGTlmVcOa8XJuqjm3dN6zj1mHhQVTeRawur4hZtJ3P4RbwBZgJw",
+	"pViCA6B5ZIFYknU09zEzuFbOsUZOT5fJxqtcWmZLLov++2xgzRsOVxlpuyKRulFt3UA617wU6iaNSJAf",
+	"DXf+WmRq6PdL//CWQf7XlIIuQlGdNXIqXAUeuJDaCrMEq8lqBhA6sONTqfKo1qw0zMKcABElghxgfkES",
+	"n6IC8hoVZiS9c7N46gAfs9YCvwpPN6rmrnUcqQFf6HOBqJSVyjwtbRGWshJ1cMWlVLm+ZBNR5FEJyf1k",
+	"MBj4FaFqIwUVyNRFLox1D2DYI6xxd8rMhc8l2iSkM05BujZQqbvwdL0JUQnccPLDwWsMMF4yf8au8Rc1",
+	"78h7pEu9V+rTFBZ7O1+y6iqJnOyYjkNDrqo6HDYXF5KE+Z5if/3nf2H7yzCEwg3btuCPKAgMYTmepu8h",
+	"XGHoPANvzRocEdcPJw0LEudcxX0v3f9X8YV3jhHorABmsTyqJxxRxh1dGuui0JcmzvDxjcDelCCztVwc",
+	"zTrqhV7X6dEc+Knrpfnts6jP5i+Rp2Php9MwmuYPzzW5RSKi9QHi3TeFPBBA8buJpsdxsQ7wzB2y8AbT",
+	"rqyPC08bh8RDj7ATU9OpJOh+fNgswd+XahRz68UHtktyWK4RhTN5x3iNaDnSshLASR3+z1jaBK56OKjb",
+	"huRtjr3d5DHd6HTG58eGZ30iarRnawd6t5I8VzKoOOSkEWHiLbcBWqpOF6lPYfMMNObaRY/wGMeXo6qw",
+	"51hHG+w94Hvjh3tPv/vhi3d78cfDTT7uH3Rj9b/pDBB6yDBECP3JoOt62MPp+d3nEPlTuX//MJtNv2vX",
+	"FLh3sErn/P/t/Q/f/bCf3Fsynm94KbnKRCgDsQkGH4KzUQFscspfuNbYuFIUxdgqQ8hOHx8xUONZOtOX",
+	"ogRIbtO72oWgysFPf5nyq94VlPabSrX7x2yfbIP4EZsxU14UjaAACmgcqoaD79h14epImDxlvc5ScLtx",
+	"9+xTlkGtCvKqt6SRwboOuf01H/Smx9W812N8DHaw6a5D/U1NEVrwO5jh7sq/qHmUeUIZM440ufzupcGi",
+	"Mb+dcQNXcdxEclzFSd3oXtGL7tNTfJ/GHtB+NuV3m7C5LQIDbjn2eR1uW2OKduRQjL0Hada1979+jCE9",
+	"g5/+0hvrSuUogbqInd277o8tWRA2eF1xAjS5nHEAV1uvGEFNI7Yc1ubATdcw0HAy13A3y6m03TsBLPbH",
+	"Xz/+kXGQXiFTbF6vwx3jU7/icoNrnE64iMsKc3s8TT+eLdbyxqKDa4CHBWnRwSHi0t0xPmSKZXoqjAve",
+	"X8tWF0kQjlpeH/ThD3FrsRbuVbyzYdHDxUxqHIqNA03j8/Xh8qtdMGOAJutUGKfALNyTPgK6FSp9JhB1",
+	"CrgpxeF3mPIjffmiRebXvXgLG95oaHE615gjFu70IsuUSloJwdS9Z4++oTSJTCsrVSXVecp6j+Db2FMX",
+	"jyjmlK4hOoXu/fVZZmjyWWimcWCiJlvz2sJrv81Biqe9voWmubfXaAbNLjbY2i2d/isL9XurTlyqfwO4",
+	"ldXJXV+7SNpWjQ+C3WaDJJjnQ9ZApeS2tfz2l8BhDlbIqFszyg8a9bcO2fdxQt3+G6q094irXOYeU3GD",
+	"EwRJ22JJUhMOX/gg4WyitVmGo0R2uZXNeKByXyVssRGoKklxvxSfPKLS/Z2NFrw8B6UKH6mhfyzU38GX",
+	"mVa+LhnUtYPzlwtXQSrzqxULei57EvSIWonYxv6qrejG0+V1x9iVeStnM9JmiE0jnO4xE1iMWduJKC+l",
+	"6S5OYKrpiJ+ZUdf6/Nt///HXJ09+9KsCEu1exouswvJSNcDBgpjbNbotV2GbOpOtu1E30Zju0nMSTmES",
+	"jrXbjeX3xg2wuX7PBTd2j2ywxh0n0werwdUfB/37Kfvrf/nf4dP8jwep+5nqfHjH1NkcMLXRWEDiRjtn",
+	"Ci2IzrrQe1hMhcw5E5bxop+wv+8P1aNJqafc6vOyz75kn39+yHoHg8HBLjvYv7/b9wYMPzbocP8uGAV+",
+	"+leKpQRI7wW7RmS0uAJDBR1zxrNSG0N3xYCzrdDnPfw0VKePd0OuMXzdmMZu4uAhYb70/h3DwFF7+vjY",
+	"4VnzoaqPlR57YlKXASdoi2AbcTeWxxgTgKCRLpQg7bcTEdzqm77vxFEsysyIDjfVe4ksM6aawtj4GQYy",
+	"CuYjL6mclYcNGaqlN4nxqUaHJBgkpXLZcEo3CNBUlwLSMjgkUhTjLqLVZ09wOUjh9DV7eVHUd9Ng/QG3",
+	"HKP6a0iohXyWdm31sbxCCDRTp500UzCURjOkO9z0l/t8gP/Ow/dz95m+N/gvLPWaQmK4cl9Tl+HzM3Vx",
+	"+n1p/6H13cLng46X/nPru4XPCy81vsAEke9ievCyrnC7UZK+P6v1OjN3UhN3yEN9XlkUXQn6pLcZyD65",
+	"Nmyhzqd6l+w0b0KX/6/tHmu+kDS6XkktG/V8b26JjrGMF7irQ7hWHfzl1u1WF6wVeCUwjSukjnUSKSVE",
+	"bghk2pFjq8EEuYTk9Tj6A0vG3Z30b4HEQW9Cxug51FgExKCcjWkUzcQqlkazPmLUNq0VMnt4+I5hp48J",
+	"tKjPfCnze0eMA2V2wfaXum4SyC2IS7k4LwWMGd4VIgfMI9iAB/fZr12NSDPjysAUKAgHqSbs1ucDl0vf",
+	"ENojWf2gE5S/ddDQM5xVpbTzU5QacW/OBC9F+bCykw7tF77WpfwTcqQj9iU+S3pIhsFDrhJQn2Gojzli",
+	"aZ0rCf6JOFkSq2020iXhCcyXTI+ZEcLV80J4K6kBLiq92vM3a49CflyKG4m9IOHikGohbmLtbOfdO3QG",
+	"jvXilKKaUYTlYRrFBiqFDKngZ7p0pvFItw8sKQH2DtBTjZ8XAOkSMqwTgpNj9DHnZXX9f5BoCpnNCUXK",
+	"CPRNOKk+ISEHm0rYrNDWJA6IIgaIMHi2XLUKk7DfP/TgzdAkV41orqEaqk8+IYZIm+RxG7gl6aL/ySfs",
+	"YRgfiBtw8ysbAaQQ73dla8BfC9teSu4z1kF7cPTFsLzkl4rux6w6K6SZiJydVzLnGJ+HbdXrTosDc7NO",
+	"+6VUfKgoCHeDK+K7jhGfvnyF93SoZqXIBBbpPQ42KyAmfi1QnIJUUMJ6mYnSaOXRupxRi/DGhoo21MF6",
+	"uVWuZctSzARHyDEJh4il3iCR4ur+6lfskVYXQuF3Q7VHNbqIEBNkBayPUfytGGXY62vpv4VCfPfu3XvA",
+	"einpB0csGBRSIGEMenzz+hF40XVlZ5Xts1qBxkNsqGasnVCCbikY2LsZCRGmDyOicqb041gqaQV79uTJ",
+	"k73P7x8yUkdMn4btYiep0OzX/GsER1D4zvwYhuOCvwgbNqqXJY0Ftzd5mPDHhkvJn6kEKDtrqlOw2nVs",
+	"Wam13UWgZtCPUi8ec2Zg1koUOCNn62FE9IwDLfE1XGj1DdQv7mCtR1TcHytKMebtCqEpWKSs0KBKcuCy",
+	"RZEwQ9nElgRdWL+M22wCu6jm1Bu0ZTEytYTxGqFyQwuBByfXGdGesGZEsM7EMcsKCXwWAjQrashYWRRM",
+	"nitdCj8ZOxFzlmt8F2aZMEScZyBGl8zB1RjG89y9QVuPJ1CPI/JnEk+4TOIulkm86oJkiZLmYSXwBNbn",
+	"7YjtA5v97JA9PH307BkrhLWiNAnL5bm09HbaB3o/gv8cwX/20oSmxKmuIaoO3L0K5wvfZT2SMlhaH+90",
+	"t8/eKIkAGtCyi9iG1qKgbV4GzBp/IYGfQSOuFhPOCdnKUBEpTO9e7Kes1KCokAiyAQ986OCR4ZJIgVx/",
+	"qHwGN/VzBAP5kT6wH1Fi+ZGdlxx2+ceh+nFvby/8Hx6M2Sn7Md4r9iNiHBPLgonQdrstSlwtMvgR7lRC",
+	"DzcqUdUKFti276Il23Uac232I3v+7MUpRqqc+xLXP1L7xM0DT4p4UdKqVZ14jx7K6EK4pH2isFLBSmTC",
+	"dd+UEdiPwMmM5eNxZ7fE3WrWZo4D1nuIJTpmDoIgts+UItNl3lgT40ZAQgn7keEf0lhkSjBtFFaRpEL3",
+	"lWdANArcfmxjqJ40ZBlWSOPQKekgEAWA5ondklqJ5QXhug5Vh+hzxLg7YaDzwpX55BMgM1qJTz5xGu8U",
+	"7QL5lIxsfiYINAlDEDlkXRUyk5ZsBCUSUZBPMF/GBJIGT3umXwgrELZyqF7OhHr46hnzkqTH2EcShnAI",
+	"dIXqmQPFroXMI/aH7wBXyrdzrz8gR6hxl4IWCk0YcDtewksHuLrwyrPHwFSVyKyzfBog1g99eFjCprwA",
+	"hkll2Yjm4ym40G+F2yAY0eFg/5hYlvTfOk4DQp1bKRoQPn2vz9K7E8ELO/kT0K67WCyP/pwKW8rMOPid",
+	"u3omFJ/J/pxPi3SoUPZQ2nXSS/3C4ULsesL0BG0hngpRoW/YSMUWSvL2UtwqOrB33befArR56muCDVXq",
+	"ipMCpewonJtiDyZ1ckhXHd0jYBKuriiUEaVvQXyCEX32YLC/suYohCsBPU4Dnqu5e3C3iWDEeulwZ7iT",
+	"wkzhzcuJLuj93WPq/dHpNywTRQHdrl3FFEr3p656AYSC5Ww2mRuZ8YJyd3ooajI2ETwXuMz49f6uD7Jy",
+	"HX1+14t6qRtOHYIK47muPKpv7vtKlPMjVCxhbDNuJ0cyJ+aX0iCOnuViOtNWqGy+9zsxR9QQsqU7OWkq",
+	"Dci3yim58dJjQyRwS+Pt2yXxVVd8KL3rjtoLfz2YmSvLrxJXphm0J8fjidtGgX/ARw8Hg2M6PES4oLoi",
+	"SEB7rrWzylezZZzK23o0YFFeyAwiH1VAio0MaF7oGSq4cyB/hGtLTyTQnkDcOVmvEXsr5igLHh4cAN+9",
+	"PxiQ+gJ0Y6iGFP8LLjQ86MOdkO+e1vWY02NnmAcB8RwGYnUYsyjBJNsfqq81UnvozAnUFD8VKj9L05Ay",
+	"gkpFwqOXBZrFnUEijpdPK4FibIgFQcEPqfZbjA1FpbeQmXDQcpQdBCWIZ6UUlpfzqEJzrORSnKRxcKoQ",
+	"4uagpoFG7Rzt3OsP+vco4nGC9gBP5eDvc9EVmojFWA07gGyGUJhzVupMGINEq5AXos++RvHJU75+wKgH",
+	"J3a+c7TzW2G/cl21vH0HAwyuc7Ud4M+Y4v2jg7+jg3qdaYq6IItAax44TFiN+4PBsmbCuAgNUPECKXXD",
+	"mLJz9Ifv0IkyhW042nkuLwTWw0x2LOI6/qGeuaFSqZ5nLF3kV6WG8y8qQymK4mrmi4yRPthe32N6BEuf",
+	"IvME8Ra4j73U5VvcIo8vbpgtK2PpTC3syQs3smv3BMZ1d1Zw2dqNdoTOwsK7Hm5j6aNlm4Z5LN2EmFMv",
+	"3Qnwh3phJehqEZUAb95ZJUGqRYvgGsfeNbfZsfeD3GCh46GDnOWHn7D//PDF89tY/9exRrtq6Ul8WpPG",
+	"OJ9LKBjN3a/eBuRYFvDLqixxgvcH94aqdvK2d4WlU50LFDyuLU4NAmFdnZr5+LAjV7aVl+4o5N4Tgdpa",
+	"GCSOpNesWM0qZWVRB5JAywZI6FSjKYSYecQ+h0ppKzOBzkhpjSjGWC8Yj4dJI+2iUYI6YXIMhgiCVEDU",
+	"MllCadkld/+EduUWyXFUoHrxvGL3zGpaz63PJ7x17/q3Tmlp3yh+wSX521cd7XrkK451gORderI/+QQt",
+	"5UeffNI2ji/ovbr06hsKFoQByBT5LcayBHkJa4FRDGmjGAEakZw470Qfxc7mQ5XKPP6xz57KAq0lmZ6e",
+	"SeUcuA+/fnzMUiBoeEekclFFpOJYnTpMP/guYWfaTphWzRH02e/E3AgsdSiVM57MuKtv4GtRDhVUQgRL",
+	"f1TWMMWyif7v2qOMIM403OPWC3BNMd5Cq7qWMzQN0iE9BBPRM/49JOlo1TZU5oLSLHSJXmQKV5ny3C0I",
+	"khLfeUI64aDrFkG43SNfBiboCwYTuIFT7qA24DPJj5r5mOvdoThO6l3S3Wyd2XlzbQbs1ZtrMuTyrNdk",
+	"IzFrWZtRFZm1Go2K07Qv6xNeFlIYy1qFPsJ9wAyojjHAzWkMYJ2wwMX+AfF0sXdxdU3vVt9A3684OCTl",
+	"n5b2ggpto6OQy3l/ELkqDxqeys7y4V0yV/N+63GDbNDVXjKwUBt17UNlUKz57hb5Hp5cDMXt4HtQTwUm",
+	"BLMkHoC873Ad3vclz314K76yf/0rbxR3Jm2R00trcMunujyTeS4wlvDw4MH1b7zW+gVXczc68zNx88C/",
+	"H1GaiTTgXYx4uOPX30FQTcvguoPAbOug/TaZP+Lx34IEQNXt0AYxluDvIy4V3LJaZSKp+aWD7ceidxTX",
+	"RN+MnEHAVSySxnnSSuFbWiIe4hIusrWujakfoaPvKjbc7v1apgNRwfhf+JUaHF7/xtfaPsU0lb/RO/jQ",
+	"F1SBIyqtoeAGFyOBPiwPM3Hbt/MuOozWuqOr76Q394ErSeRU391F7dT+La+olpVKPBwICvDOqRJ5r9CA",
+	"NpsJRTrpqpv4EKfwi7yOOLTneqlVApfJfLySv4ArGR09dN9ljsj7G+gu07IbuMGVc3KrC/+cafNeF49y",
+	"5AzjoBHTqBNWChd2HZhgK5syRBvrUp5jjo0PMLETzyprlPVCKvIaMomm+dQ3M9Jj8AnBO6GhwEd9hhx6",
+	"Uyx4JaTygkefnbjWW8MIEPnwRvgE2ivC8fiAIRcd2ROO7GBbQ4Vx8JidppUIhiELdX+cDwxzhlCPcGZk",
+	"tBzsOgIUlsc5jdIZmQdGbvGPnWnL+fT1OCrp6FTNocL6i9z7+H2MmLRJcL742d4x7ikyn8EWIJoSN0Nl",
+	"qpkojch9ocQwNPBnmHYzjYAGt8ZHYLFzueyN3yl4BnvTLnCmHodTsXyZJztUZKTjaLTAaFolAuQMe+nR",
+	"nZzJMS5OmU24VCzjiqDmMFuC9Q4HD5KhQt9Y6lJUzci97bxzJ4i80Ts8OEjIJwsutWwSRLjabxs4KLR3",
+	"HILshoqGD3UeXuwPIK/h4GA3cSaRKLYO4uVcYi3woV309qboeBu5U5Ue0RjoxGEgFzFp/DYcMTSrKOFT",
+	"MUJhKGzQnWMzMmiXhxOlxCUEMlhWCG4okci94wLG3D3gBXw9p3YgKcX/MhqXHGNMqJmpNpYdQAxtu/6o",
+	"Hwq4R0OzcAsKuEDNSfghZLpSME2ak29q141COpBVMwKvXDyNRlRn9GBKy4dj6LldYkZeJX6LdvFc11Uk",
+	"qCewqI0wJngkVG5GSojclbRJj9xkYLgNMgALAC8y59925TL85ZvI8wl8pv1UvCwh6AJ+wY5gLvg2dHiM",
+	"1jFoxAVB0VjcCBIMukP8V5f/66M/LidzqndxLpQoOUZkpe6t2taGi7zbJdoQUX/iGcV7CjfIYb/U+fzG",
+	"5JowsiCNNIP/Xe3Ully1/2HUnBgxgMIKsP/nOluSZvqK20mg5e7lhKUtvo3oMs0pJqu8UP/BZLrBGjLd",
+	"I63GhUNXOtxfY0yv+LzQPH+t9XNItaT37q+zAKaaUdXBFyKX/PWc8DUPDw7Wedk56UEMfKIsODn+RqXW",
+	"J+1oPqRyKP1hhUASCqPK+V6a/T67CUl2Vmjbn6nztfTHLWw8fCowthH9INiZuThP3cxeff1bJqdg/1yh",
+	"G74qtH319W9vUzvEMdx1q9BhbT6TipOlbR0/Nc7yoz74s98sODiRIpgwOkW3bo/xp/wWrtRpHeccxMCQ",
+	"nTXl5VtICvO5NgF2MPGZxWOJ2SSQoKpy0mV4XQ1sxpUo2Jko9CXpK3gtQtgXp/AdDMwaKsWnKGRS+yFJ",
+	"KEpAgtadA+u66336zQe43ubi/NOrrQJPPl7oX+iFPv3mw1zoOhdgPXNP41K37/CzhWw3mFM1Y1YDqtmg",
+	"Tk2J0uzchFHVowAYXmuHFGNNt7m+5cxXGmXcsrT+Pq21N9SuvK6322cLAaJ99qqeO2UNtRPnuJr77DIM",
+	"NpggZx9TrVduXUw+NAi+blgMRxSOG8BoQwUPCIOKG5EmV+AbomF9oCrlZWEpRF1ZI3NXIdtlLop8qEgD",
+	"1CURMsbJEN9nscGesrDGkJFTpyO6fjAYd6gOBw+Wa3XRovzi9Lp6bBspdoNbGQB1scxR7Mxrs5Drk1BU",
+	"mkt7K3NR9nc+6mAfdbBbd6jHuRyYSehTjyP2EnOBNXnMCp7i+M4NeA9eaASWduQNk5LbNm9mNUtdJplj",
+	"SB6YOqXy+uT1IxtaLjJnP3HlwkkhhZZEZzkN9hCbRvO9H4fDXCZSj8GphNhKRjhem9LARByIslZit88e",
+	"NhgK4cgXWp2LcnFmGL724AjlWPgGvhgjAOhQnWAdGxN7LzF/XelLYp6mi8RTaeKbCBC4eeJOY/uZCPtS",
+	"ix2NCpBKPhLrj8T61t287YzYW/X0LoBB3rBGT0EXcS91BEaHAoDB0TZdFq77TQtX8hcYT7EA6LlE6W4s",
+	"/Eft++e/d990J9x3RlqssE2vqYYn66jZDXye5feMPYuwBqDZoVqCHuDg5M64zSaURwk1buKOdo9DCv9Q",
+	"TbmPl0IfqwdPhVs6AaGp1xqUc41jsk3Dvwu4BlFxY3iJ9aaCo2kgDZsESCF6qHJJZXR3HWLEdMZLgZIN",
+	"Zcg2U5OPQp7PUCFqOsJDe5x0bOLXj6/HU4cQTUSfNKiMDxUCf//1v/6vLYdxjQPUjxd5FGpNAuB0mpCA",
+	"OFTeFPHTnw8G7Nc+KIG9OWVPXj1kp9/ufXH4GXuBrbMvBoPB4ximqLmPx4uxATQshMssZY5rlPgQtqFq",
+	"oPLg1z6WwIe0PayzX3FpPaw7pWZ4MRUkW4Nb+7AzWKMZpuHB0ZugEiFqY6i4hcNL0Q9A7Fk7eqPRuC6d",
+	"iyiS/zFb8pKVlTpuBX04VCDjIAgXQkVcJUH2UIW0GK2C9ykKXGmQZ+95pSFISy8IM1Q9RHRBLzmme1Nc",
+	"Bc3Yak1BO43GkqGCh0i/KDUhPvngABy8i0pCcxTMyZZcGYqjcPcLU5hpxw4HD5izVfvqPWRc8rnrpDrE",
+	"VXogxw3/GCltR/63dDcJSlYd2ANXnSu2uFR1I3FoTN1Eywzlnp1wMxpLiKGBdPAjhOeMN9thO8XHKAqE",
+	"gj4bdw53dRRdGAR54BSjs8S29U0ThvyXpf90QWF/4LiFLnD7NUSYEDirKwsU5qOu9FFXun2Z7YSEE96N",
+	"llSDJa0pugUx6Hr/SQTvdPeH+sM7r1w5knhLYQeR+QhvOkW+AtlsOSg9jge3xGq9a2SolL7cPQp4vSIU",
+	"cAsc05KTAQkyvkvdlSGOcqh6Stt1mAUJcvCw5zbkxKUEWZfFSdH0aMJLqLARtx4PPPJi4KwuOTFaWCCP",
+	"Wm68q4cZEcfF0sRGUo0QuArBvxSa+kyVTdoczwwVMWNd5KJkWok++7YFJUztQ6AjcTUofT/RVelwhSLJ",
+	"SRrXDqId0wLSTiRUZY7gCHFgfXY4OPTIjhiwWgqEFYEH0XNwqcvcrPI1P1NPNdU02Yyt1frDzvVZqsvj",
+	"yzZJMV3kJlNNgAceT/EY7ZjkGDszQtllSYTcbp5DeesJTn4rVuU51Vv/Uf3/2VnJ4q7AVeXuWN6o7n8d",
+	"C7lZf/xDw9JXL09fsxVu/zQhxSg2xtXrMKZM+wXmkjqikC6wF7i6iBM8VOlvn1DXa3LMdNfh2uHqA5xh",
+	"AGZDf0z21g8vN50e/a91e/zoQzkcqpBpQr6Z5TpCTQ/fxxMeU9Vb0he6BvrRLf5Re/ioPaxD8n9fcZBJ",
+	"5ito3436xx3+6Fo6QUvgLwheIs6NIzHVQ++dzTH1aJnj5IXr+hYJAHWxyuXh5v8RMeHmfYZFEaFAN89K",
+	"HOPhnll6fjfxTsQiBhpo4fyxzOV6hpO632evtLGEbkS5afA3Pkww0hBgV9duJAuvtGbhzPumSXO8in7p",
+	"HQz2IfFLIAhMWU8dUzSTyMTqC8rU0SChEap7NVRRWmo9dHHFM+vSCFvjumOYuz9ER4bKD1Q54YRjfAnF",
+	"aoAx9GAwQMNwKQyZzUOtD6gKEHkYqKBFhBBR19o0MfRYMOKbib7EKUBhFUaGbjIA1Cj2lZLfV7T2UoGA",
+	"S0otxKmsMJu+8IhCtyHGUOM/k+DiZtZBs0hnzXjhjSutnT8OO4zYHmQsRep2kwbZ5eOja+f2T5fvl1Xm",
+	"GUkacaq7P8Cx+Y+WVvZRFPsFRiji5QnUKKndfrHIQ+WyNmVmTenLnekbEMISX35dB+ieGHggXY7aSpS0",
+	"C3IOvHa1ZQv/uR2L20NmZiIDm3lEziIat4bdLcrZq0dUY4ntH35++MW9zw4/vwZS7LufhbbX8uhH49vP",
+	"f/1fKr8b299vp3tt7nHpDllDdu7oTo2UUQuS5KMPUApRhe0EwTEIN4dJRT58LG6Itg0sLPA9mLma8EKv",
+	"tEO8IAdCAz+vE3UTS8cAPjne0qM6vgaRQUAebr6DeN+X4F8wwrIe+mwdBj304QpVOh3Y6JJBs74GWwqu",
+	"+6kuRepdFAJxNuErhxHELkUpPBgEy/TUVbYYqqcY9QKCUnNERghfUw6bCGK2Vpk48s1iCRuqqEqoEEhz",
+	"S3KrCFnGARLG9Ys2RE7zgq0oh8oF93Dl+vJOpzBQJH1lP1QEocekQZRgK5TvOuqOGkFYenBSHWH0FYr8",
+	"AB+CwSs+2wmjrPokJIKTz33f5znEaKT0g4vCIItxCLHo+/CqZLmn0z0Z/5ruIkRqp0cuvBB+igeBoSw2",
+	"RpupYWBg6HDKfeH28HDsCNSKqn102iJOsKEnuLmLbHAbeMljx6nqocAN8I+OhciX8TC8Q5vjT94oBOf+",
+	"YLC8XOCH5pi0OU9Fd9RHDH/5twEM9rcoCxNrgWML69yMo2sEgdM32xkjy2pt71JU12ohX1uXziID5K4X",
+	"VV2sobkcpaMggDHGCClRV2AECkU2ihYS2J0AEh+J3J6f1jT4iHF2MNgH7z9XJqr61CDuGOtYKZe3o6Ji",
+	"elRtB6qiuJBNGlldz8UZhHRJgZCsFyqqJwhQFLaWCShWmDCrNdQsHSp8yOySdwoArchHlfj6aS6YMs4o",
+	"auZqHrGSXw5Vzi2vQcvspNSXCoIg5hD6G1ULYr3Dq6td6iWYnyK4qjMx1w5iiO47WX2OokVn08r4WoAE",
+	"82gsrWm9TzWm2LE3I8GShCR5D31W8DNRIEQiLw3y9KHqLQA5GXauqSRRFAhMh8VeuhqzxhfNozL3fKga",
+	"McDH/pLIvGHjiup7uupNv2JR+Z6hOhUg2ixU9LGaTcHwVgpbSgG7MRYEko6t4xXzETdDReWiUBIwJFiI",
+	"KQ4fkKeoCJDHnjo4ZBgo4vHSkODcQYudOhflrJQkcXB2+tXDvYP7nx3FRYQIkzIsPuPA/UpD+HVDJVSm",
+	"Q1oF62ENbGmxVG1GQaFTAcfeyU5uRafcWlHuHlNHQwV1nOKOkI/V5ZRMAKkq+SVVmzqbW0GFCk/5VEC9",
+	"n8QDwIdJJSTl+imHUmU5nb1PPvFAcUPFwoX65BOq2GOrUtXzOhjst4DmcRQopHpTl6u7iY81tvdEzAo+",
+	"x27LSqRgwWNGZHArYEVrN3JzOt48beM5HWFJo/jBqCpFc7qBAIBfqYCazzRv1zWGM8GAKYTYXypbnxFm",
+	"5VRgPK2vEFDiTCjiW5cMEf0OBw8QvYzm3axjIUFTqYG9xlJJM4HxQMs4i4d1Z3CWHXECkgId3AfKEl4H",
+	"uzVqPm/FPFwtODq9FIvNZOYi3YUaVmreqIQIlW9KC0/22bc4ykckteyB5euIhZdr1MKhctW/XA1Nil/3",
+	"us7C8UyJjoGIXXeM9YwbRRd6nmESpUl9xZ2U9agUNy92jx0UQdoWp1IXXh51i2TzTHhBtHc4GOwGwxEe",
+	"UGnYm9dP976AglIFkT68Ont0HQHdBJ6hgqH5LgVCHe5/MRiqnps65GOcwZx1AM5MhzvpMXv+FLbo0cnz",
+	"p1QgTagc8A6eS4XpDNq4AzlUoegm9JX+KvWgB7Q9sBTwhXkrZzORH7ua2wW2E/3Qp3nRIaeCC9iv0x9p",
+	"w/rsEdZ6M8E7SciWak4UyBXYpIJwWC+SdoT9WOs1ECD/YxCB9OVC5c1QffOtVFgAcy6g9mPqW0jxA76f",
+	"+oqRPmrFP+y+iIqkLvkSX0eGVL+MH5uvkk5NT7fK6Pm3fHZK4+eE/fW//m9s0GohVLYLL2PgYFQJ2x2m",
+	"5T8MVVgEKKaG/de91MyzNVOfh7Pwgv/BVT9PqMSqYAPWo0dIFNvfpfqae+xlBB05EyXsJMCr+sLzrv7r",
+	"DLVPhmCHDQqP2IRh2/C+ul2IJU7yh+FF9BRScNtspLkdu96CC7+3e4jWq0d/m6h8H3bT6iFasd0+O9GX",
+	"jtO60nDAr4P0Ay3hr0h6MfiM7kHcrzT1pSCDrJrjLUARgR5sFIeujIDavdBTLjI55QVh0mK1Pk/XkAgr",
+	"pFLpfv++2LuX7lLiFQO6VhmucuNRIzUWcPmafw0E9ZkahxBXVsi3Ii7cS5hnVG44rAiilWDemVQoxDhO",
+	"g5Uim2VdgMjOCcDXwCTvGAZ3OlBWPFn0uooLhuaVW9LcLyGRGu4rjdZrSL+7+tWwjk4Or9k7KQYg+4SK",
+	"zVxFNM05JoDYEW4nZu3jQ4eDB5+RLBTVGXQIsTNXeXPtwph0PLqfT3fDmcE1JiR2WGOUEmkde5C5hnA7",
+	"QcymOvqOsBLZAvsQC1FY8AqUZ8TfTMJCE16D85BawOiRp5H72kG7QlNQQQTeQI0FLzKhuJKY5OpVgsLi",
+	"7FfCaY+hRSyIR7CAWu0RNSHP4nEAS+VzlITONEVYo8pEzpeoDtcdg41SsaAyigGAJhxYL1pvXW1Kfxb8",
+	"kvf7/dTvG9kEr3AVjoYqTdOh+pWTZajjiOrOJtpqlAr29lnPsdZFFro7VHC8E681kULZ5Aee9CeBJiSe",
+	"wgyV38pESXheJM/3k0H/fjLoD/YHB0my8onBgy+6nzhI9vsDeOJgcL/7iXvJAT1xuL+PT9Dp8b8n+PL9",
+	"QfLt3mBweLDkgf179+iBe8mBW9AlgQcn1eZpWpHE/zsx31k018HJwJMWxEBkGS5dz2nCGE+1xJz3ngWW",
+	"NhlNdLRqDr1sXDdQo2rdsYWsCDSr8Dp1pA7hXzbKSBK/gfJH9RCD5A6j08B8Wjkxywbkpf+1F+2lf+Hd",
+	"rUGhVFEkb7LjFaNmA4sLgZwfvjwTOZFImPNUqudCndtJbFCOQQE/XH7hSXVdWmFZ1dmEPiupDOV0eiBv",
+	"OlpdOm1+qBZsOAl5o9xLjjUECH+3Yc5FEcXKdNkKFhc6ReOBL3cpjdd7XG9+7dB1qFgdlYadtowXoECv",
+	"E15zpnUhuMLDsF5Ej0uRdiE9ZaX+Q4JEf4zm+QUCWWpjGQ8XeSxtdJljD0a1KpY6zsbscF5sULpruQPD",
+	"0xvveObeAHiEI/ZCvyup0SpXQGbX4J+h7xr+6VJkQmJCY5OgLSvquoWsc1Kp24a0gWEtp9Uf42d+CdW6",
+	"nD+ADu+NXrGbDqyhR5qFabx9pXl7XNwFWIpCBZqhCgitroaeF0O9FcsEL9tiWkdUYM+BV+TpsYsi8T7B",
+	"uDIQxE93RU/40kTU6rkEGQU1SjcIH7rYKK/TrN0QMoXBku5SgaPqOlE0RbCvn8RRRkP1WJRAW9q4Op7S",
+	"/P5REnsiqqKRMG6GCixEQLIS1kqMw/I1LqQplDIZqv1+1MtlY4hLM7+PWOonBVWYDuImMl0VOWs4WVuP",
+	"32v3GIBMpHJBMq03DuM3nAcDFmMKlNvqcu4drBzdLsHyhGnnrbbu9+OAyO64mwCJ1EiXd4YKdxoINSjy",
+	"PdC44t6SNgYOvt7oshdgkxcxbUpBThlRENQS2jXRyLWAnOOlwmUnW7olgeewAXp5IkoBLHEJQo6v59QG",
+	"ysEWsG2IgGqckEyXpcgsGjK9jQG7bmpsd9AvxvJSju2ui+rybnPYSb/k0nbWjHKLhm3QelHEFrx6PFSf",
+	"xcelgSpwxFI4FLgovIDj8Hn8bARWwHpBG4GbkpCnLeAV0GChahNj/lYBBW/EGoZgQrzaTEZhagCQ5VNo",
+	"HXVNA0V4SbWuUW02Q0UetYeYP3LEYoY/nsjyU++6qkGZ0JeG1ranXz07YSeHQF6LQlBwW/plpXLwm8AY",
+	"Xp4ZUV6Q3dywHiFVh9pWbx69ecGwLDcBXVemJkuN4MgjVi8B++v/9C8EZpqwaLHha4x/BMOm4qWriY+n",
+	"G97IuALzsfOAEcgQDueYpbkARpnSDaxPEf6C1PIpFkoPG7nbZ81Fazgg50PlV8g749Co6Dbc+SVLfekl",
+	"xNqszYfKzIALmokQll0irYPPtNywZVXB0X9RYsQgtvmbhH2asL2E/V3CLD8bKvTqBfQM7pjULpuVYiyv",
+	"3BLAYeEzbWypZxPhUL0C/rnjURzYn6aFIj9zI+8Il4T2m8pCkS3ZMymYNSQXQe269pJd7cUnbVJ8vndx",
+	"8KkoP6cl9GdsqL56/jm7OOjf7++z9OXJmz+eDPZTNhXGcHARSMWenHzOMIgBmZJWIsoRZr0Xp18lQ/Xy",
+	"yxP66eWX/4A/01SPaGIJHcRKgVecfnHA7AnT9QEeKiunIgnJBiAZzaYY7Ypte0ohyLfpcOmNOIdnmFDE",
+	"8RAMmJelhIA4ilLAeIIXz5+/YuOSQLk0CBNfvX79ChLTVYidsZNS1JjwXLFKZaK0XCo7Z2dVfi4smwsX",
+	"JRABXNWg94Qcgpvj/CpLNIqTEDj2ARSLQGdW2akeemrjDxwsynwmWE17+rXhT58Bz0eB9z2tabQOy61p",
+	"C5bGnWVHe4siG47kftSWfn5t6bSJTEgB/pW60dBKUp2c+PH+cZbUTiRuBgrlre/QPggjvIXu6aVEU/ty",
+	"IDQEI9ylYd9TDrx0IqzKRFttapTMdOCFPjaidgD0amUO/LJjF5YU5fEG0a+OKncORWc2rQtl1skWtbBy",
+	"p51lAfx9SSwoWx0KCivalMilWdAjL3m93D6+nBQq4B0+Oj6Ed3lLD+KIomYljAsVWIbF6vzdQxX12jNC",
+	"RPJeWweHuAJ/FtyG1xkjsA3SGlGMUSOA1GG0CfiZRmpepa6NCnVMz2FLUgVwUeQuWBT6wkooASPURVK4",
+	"o3Ec4hOYzBshoHFQJjqHoa0EBC1QgRwYmdd1pA35JBNu4kadmuKnRlrAUNWzW+5OdAv4Xgzx5v09blQ/",
+	"E+pjgz928q+gftJRkWWjLrCLmvwI2/LRu3D7xs48D6fR6sjP8L3Hc7ETMd2Em68wg7qO7v4QQjDe3bAh",
+	"dFzHoBG5TBjPSm0MzIvum0etIK6JZlJf0Tyykx6za5hH6MoxUqd/oClI5jUCNI2LULM8AyA84To2bYm+",
+	"QVRsqcqxSFYA4Ksx9QXG5n4NrvtminQY0c3kSd+mG6W5Nh/VhF985dr2LeWt03pjCoMXCvem3IpS8uIG",
+	"nS2u1kZtsXZdYFB2pvOlkFG+FueLMKbbvButzlbCSPkBfcw9vBUgqYWjsgmC1JKDvjGgVCZKp5aWwiND",
+	"+fHAUTdWZ2+Z0S4Q3RnSUM11r2ZobU7RLpi6ZAlxNeMqF/koMre5CmEp1pAAKF8Kak9dqG8aCjukrPfT",
+	"nxlPas2qFJnl6rwqeJkMVcV+w/jdv/7zf7sHNb7aI9Rlw45H8bezUsx46Xx4kGBHuRRhooTaJC165PzD",
+	"ozHasH12npu1+9nlGRgrZuBxKSQki7goDLCtX0CUMZlbp88Dj5XlUIV5mt1jFmn5CZpTsQlvPIZs/tq+",
+	"P+MODZp+/o37gv30F/Zv/wtzQ7iL3e8G72QpCm7lRV0jZKiiPQFl/QwjZusO7rikAFRLaRpQHuBuD1b8",
+	"p798sztUvb9/9NsXELLMfvo/7vf3+58dsydVyYHG3H307PXDR+z3bx6+gHJuffakvw9B+g4JDF1ohBPg",
+	"8tqPsNhojqomRnKj8to7HDxYgZLVJmO3hJfV7uZnUhoXZrtUpnFMyJ/r7QCqAuNKu3nm3R9gvz7Gt33U",
+	"QD9Y2YEFVrk9fM3S8/y+omCnmrZIp65Ho4LR/A1oWWsSpZoWfdS0fgnwT+9zlVZrV5ifv6YPJq5jbkwl",
+	"DOOs5CoHUQeaYb2Qy79/8AU7k9bs1pYKCARTBA9AKf5DZURWChu8tegp8NHhqpgfh5QlUXrcBvgeZSSH",
+	"ATBUE24mFASAsWmFPjdM2uViyGsY6i3JHtj2zyRwYN/XZA/gNiW1M8ltAAQvKJThfukX/iMDv32Cg3eb",
+	"cTosEaFxpGJNlk1Phzj0XBTCirXpy4m40G+dhoMtHbtkxDp1dLC/W6tZDvLYoeS7GnZRHqx3lJXYbk5t",
+	"OituF6l4jMP1pOJ69v8eJtY3b5497mT7h4urRcvyEZXxFyHmwla8/zUphcrNbVbCMg4cdkn1qybSYhTu",
+	"jAaLoYLwxnD+oyImqSn0DNKtMQ/zjBsRg1xg+VLoxdmDTx9jS3XIderfSOtY0Xq48NylVLm+rDs8GABq",
+	"I7DKUhc+r9tILBr1058P2Olj1rvkpZLqnCwpP/35Hn5J0Q+76D7RCrzypxNxOeGlhdjS0rLes9OX7PMv",
+	"Ph/sHbjpfCuMPcdkFgwC2N87MHXjCdvfuwdwBwd7ByZhJ3uHJmGHe/vkjtofXEE6KIRl7aLlRMBCcorJ",
+	"rxfWNMPkDQVGYlpeXArsuFWekowxhQxOoKFKQwdHbMwLQ0W8LqQuyJjmzWSmrn8Zwb1DoMiFLjA4AyMX",
+	"x+LSJ+0DwlR7c+xElC7CIGw6ZH3TfmCwiKqKwkVlUpfS1IvQZw8pIZ7tYy58PauhgoN9zCB/UGUEtejR",
+	"NFV8IjDWFaE1e4qXiPhg/Vqg9Q82Ea8Vcww9ieRDTIvMRLJYL1ZfqqH6/SOGjDyvSmEoz6lRKTZhpQCb",
+	"ptVlV9HYbo0SR7OEj6zKUb4ZbOMPUbGsq48w27UTh3GdXoXXOtKZn2C6KNCPOEQJfL4YP3WxNCcdDsYN",
+	"pFM/57ajd3F1Te9W30DfX+lLNuVq3r6TSQvctklAE0JrsxGRXjZK/3s3EudBDMR50MDhPPjAOJx0n5bF",
+	"4ohSwqLA1fUzSgIOiMpr0vjRR3bzYtFjyEXxEoeDsfQXmuK9KbocxYwWM4fNaXLeSKyis35D1eVI6ro7",
+	"K7Ttm4vzWxK/sJdGjgr1m7ay3Gu2kLC85JcUmFjLOiilHMWyg0OmoxAXYmWZUBZFA+V4G8lEQxWJQrTO",
+	"Ib3Ot4aiB90KgRFDhUDENY+diFCVBfDukw5hRGlLo17F/F4V2p5+89uPPPAjD/zIAyMeKKf8XNw1F+ef",
+	"Xk2LLRInkDR8ZGM3DzMdk15KgkDanTCiYjfMlaBvkVUlWA2BKp4JXoryYWUnO0d/+O7dd6HD9n2oa1xS",
+	"QKQeNwIp6oD6Xq2Mm91+fd7hrQ4MqKcE6xy35S8axTdHmcLARU3UpFuTxUafqQtRGsHqYoEwXm+la6B7",
+	"xe3Vj3c1+vuHvtQ1jIVXucRKqLLoN4uxiMuul+sEjyaSeBLCuKOsisA3sxqEvNGLC15c6OabziSHpM76",
+	"qIGD27WPQ+vfZx0NUwEzrMLl3EBR1Aqra6WxmS5kJkW8rO6FrlZfPSOrVvw4fdHx9HPw6wgTUM3xz6mw",
+	"pcz8tKRhuc4CyFQDV4q29bt3/98A",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,

@@ -60,6 +60,10 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 		}
 	}
 
+	if err := demoRecordMaterials(d, adminSecret, now()); err != nil {
+		return err
+	}
+
 	var existing struct {
 		Curves []struct{} `json:"curves"`
 	}
@@ -77,6 +81,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 					Verdict string `json:"verdict"`
 				} `json:"curves"`
 			}
+			r.StandardMaterials = demoRunMaterials(r)
 			if err := d.doKey(tokens[lab.ScopeRunsWrite], fmt.Sprintf("demo-run-%03d", i), "/v1/runs", r, &created); err != nil {
 				return fmt.Errorf("demo run %d: %w", i, err)
 			}
