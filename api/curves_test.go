@@ -190,7 +190,10 @@ func TestCurveHistory(t *testing.T) {
 				t.Fatalf("page of %d, limit 3", len(page.Curves))
 			}
 			out = append(out, page.Curves...)
-			if page.NextCursor == nil {
+			if page.HasMore != (page.NextCursor != nil) {
+				t.Fatalf("has_more %v with next_cursor %v: one says there is a next page, the other not", page.HasMore, page.NextCursor)
+			}
+			if !page.HasMore {
 				return out
 			}
 			cursor = *page.NextCursor

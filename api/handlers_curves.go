@@ -43,6 +43,7 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 	}
 	if page.NextCursor != "" {
 		out.NextCursor = &page.NextCursor
+		out.HasMore = true
 	}
 	return out, nil
 }

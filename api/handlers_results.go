@@ -62,7 +62,7 @@ func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEvents
 	if req.Params.Limit != nil {
 		limit = *req.Params.Limit
 	}
-	page, err := s.lab.ResultFeed(ctx, deref(req.Params.Since), limit)
+	page, err := s.lab.ResultFeed(ctx, deref(req.Params.Cursor), limit)
 	if err != nil {
 		return nil, err
 	}

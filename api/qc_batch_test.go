@@ -45,7 +45,7 @@ func (f *qcFeed) poll() []qcEvent {
 	for {
 		path := fmt.Sprintf("/v1/results?limit=%d", f.limit)
 		if f.cursor != "" {
-			path += "&since=" + url.QueryEscape(f.cursor)
+			path += "&cursor=" + url.QueryEscape(f.cursor)
 		}
 		var page struct {
 			Events     []qcEvent

@@ -150,6 +150,6 @@ func TestQCRequestsRefused(t *testing.T) {
 	b = e.must(422, "POST", "/v1/runs/"+runID+"/samples", instrument, map[string]any{"samples": []map[string]any{
 		{"id": "S-11", "analyte": "nitrate", "responses": []float64{1}, "acquired_at": qcStamp(-5)}}})
 	wantRule(t, b, "/samples/0/acquired_at", "")
-	b = e.must(400, "GET", "/v1/results?since=AAAA", lims, nil)
-	wantRule(t, b, "query:since", "")
+	b = e.must(400, "GET", "/v1/results?cursor=AAAA", lims, nil)
+	wantRule(t, b, "query:cursor", "")
 }

@@ -32,10 +32,14 @@ func requestValidator(doc *openapi3.T) (echo.MiddlewareFunc, error) {
 	if err != nil {
 		return nil, err
 	}
+	query := newQueryParams(doc)
 	return func(next echo.HandlerFunc) echo.HandlerFunc {
 		return func(c echo.Context) error {
 			if qaui.IsPath(c.Request().URL.Path) {
 				return next(c) // the QA pages check their own form input
+			}
+			if err := query.check(c); err != nil {
+				return err
 			}
 			if c.Request().Method == http.MethodPost {
 				var fast func(echo.Context) (bool, error)
