@@ -15,7 +15,6 @@ import (
 	"net/url"
 	"path"
 	"strings"
-	"time"
 
 	"github.com/getkin/kin-openapi/openapi3"
 	"github.com/labstack/echo/v4"
@@ -512,7 +511,7 @@ type AuditEvent struct {
 
 	// Actor Name of the token that acted.
 	Actor string    `json:"actor"`
-	At    time.Time `json:"at"`
+	At    Timestamp `json:"at"`
 
 	// Detail The particulars, including a reviewer's reason.
 	Detail string `json:"detail"`
@@ -604,7 +603,7 @@ type Cursor = string
 // why.
 type Curve struct {
 	// AcquiredAt When the run was acquired.
-	AcquiredAt time.Time `json:"acquired_at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
 	Analyte    string    `json:"analyte"`
 
 	// Cautions What the result is and is not: acceptance against configured default
@@ -624,7 +623,7 @@ type Curve struct {
 	Covariance [][]float64 `json:"covariance"`
 
 	// CreatedAt When the curve was fitted and stored.
-	CreatedAt time.Time `json:"created_at"`
+	CreatedAt Timestamp `json:"created_at"`
 
 	// Df Residual degrees of freedom, n − p.
 	Df int `json:"df"`
@@ -719,7 +718,7 @@ type Curve struct {
 // CurveInForce defines model for CurveInForce.
 type CurveInForce struct {
 	// At The moment asked about.
-	At time.Time `json:"at"`
+	At Timestamp `json:"at"`
 
 	// Basis Why this curve is in force, in words.
 	Basis string `json:"basis"`
@@ -732,7 +731,7 @@ type CurveInForce struct {
 	Curve    CurveSummary `json:"curve"`
 
 	// ExpiresAt When it leaves force by the method's maximum age; null without one.
-	ExpiresAt *time.Time `json:"expires_at"`
+	ExpiresAt *Timestamp `json:"expires_at"`
 
 	// LastVerification The latest verification at or before `at`; null when none.
 	LastVerification *Verification `json:"last_verification"`
@@ -783,9 +782,9 @@ type CurveStatus string
 
 // CurveSummary defines model for CurveSummary.
 type CurveSummary struct {
-	AcquiredAt time.Time `json:"acquired_at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
 	Analyte    string    `json:"analyte"`
-	CreatedAt  time.Time `json:"created_at"`
+	CreatedAt  Timestamp `json:"created_at"`
 
 	// FailedChecks Names of the checks that did not pass (mandatory or advisory).
 	FailedChecks   []string `json:"failed_checks"`
@@ -827,7 +826,7 @@ type Dilution = float64
 // Exclusion Present on an exclusion revision.
 type Exclusion struct {
 	Actor string    `json:"actor"`
-	At    time.Time `json:"at"`
+	At    Timestamp `json:"at"`
 
 	// Points Every reading the revision excludes.
 	Points []struct {
@@ -885,7 +884,7 @@ type InstrumentPredictionRequest struct {
 	Analyte Identifier `json:"analyte"`
 
 	// At The moment whose curve in force is used; now when absent.
-	At *time.Time `json:"at,omitempty"`
+	At *Timestamp `json:"at,omitempty"`
 
 	// Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
 	Confidence *Confidence        `json:"confidence,omitempty"`
@@ -903,7 +902,7 @@ type Interval struct {
 // LateSampleInput defines model for LateSampleInput.
 type LateSampleInput struct {
 	// AcquiredAt When the sample was measured; the time received when absent.
-	AcquiredAt *time.Time `json:"acquired_at,omitempty"`
+	AcquiredAt *Timestamp `json:"acquired_at,omitempty"`
 
 	// Analyte A name of an instrument, analyte, method, level or sample.
 	Analyte Identifier `json:"analyte"`
@@ -961,7 +960,7 @@ type Method struct {
 	Confidence float64          `json:"confidence"`
 
 	// CreatedAt When this revision was created.
-	CreatedAt time.Time `json:"created_at"`
+	CreatedAt Timestamp `json:"created_at"`
 
 	// CreatedBy Name of the token that created this revision.
 	CreatedBy string `json:"created_by"`
@@ -1213,7 +1212,7 @@ type Responses = []Response
 // ResultEvent defines model for ResultEvent.
 type ResultEvent struct {
 	Analyte string    `json:"analyte"`
-	At      time.Time `json:"at"`
+	At      Timestamp `json:"at"`
 
 	// Cause `run.create`, `samples.add`, `curve.review`, `curve.verification` or `curve.exclusion`.
 	Cause         string          `json:"cause"`
@@ -1262,7 +1261,7 @@ type ResultFeed struct {
 type Review struct {
 	// Actor Name of the reviewer's token.
 	Actor    string         `json:"actor"`
-	At       time.Time      `json:"at"`
+	At       Timestamp      `json:"at"`
 	Decision ReviewDecision `json:"decision"`
 
 	// Reason Null when none was given.
@@ -1299,7 +1298,7 @@ type RuleViolation struct {
 
 // Run A run as stored.
 type Run struct {
-	AcquiredAt time.Time `json:"acquired_at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
 
 	// Cautions What the result is and is not: acceptance against configured default
 	// criteria from published guidance; the laboratory's accreditation,
@@ -1308,7 +1307,7 @@ type Run struct {
 	Cautions Cautions `json:"cautions"`
 
 	// CreatedAt When the run was stored.
-	CreatedAt time.Time `json:"created_at"`
+	CreatedAt Timestamp `json:"created_at"`
 
 	// CreatedBy Name of the token that posted it.
 	CreatedBy string     `json:"created_by"`
@@ -1362,7 +1361,7 @@ type RunCurve struct {
 
 // RunRequest defines model for RunRequest.
 type RunRequest struct {
-	AcquiredAt time.Time `json:"acquired_at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
 
 	// Instrument A name of an instrument, analyte, method, level or sample.
 	Instrument Identifier `json:"instrument"`
@@ -1416,12 +1415,12 @@ type RunSampleInput struct {
 
 // SampleResult A sample quantified against a curve when it was stored.
 type SampleResult struct {
-	AcquiredAt time.Time `json:"acquired_at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
 	Analyte    string    `json:"analyte"`
 
 	// Concentration After dilution; null when the curve gave no value (see `flags`).
 	Concentration *float64  `json:"concentration"`
-	CreatedAt     time.Time `json:"created_at"`
+	CreatedAt     Timestamp `json:"created_at"`
 	CreatedBy     string    `json:"created_by"`
 
 	// CurveID The curve the concentration came from.
@@ -1456,7 +1455,7 @@ type SampleResult struct {
 	StandardError *float64     `json:"standard_error"`
 
 	// StateChangedAt When the release state or its reason last changed.
-	StateChangedAt time.Time `json:"state_changed_at"`
+	StateChangedAt Timestamp `json:"state_changed_at"`
 
 	// Unit UCUM code of the analyte's concentration unit, which `concentration`, `standard_error` and `interval` are in.
 	Unit string `json:"unit"`
@@ -1519,7 +1518,7 @@ type Text = string
 
 // TokenCreated defines model for TokenCreated.
 type TokenCreated struct {
-	CreatedAt time.Time `json:"created_at"`
+	CreatedAt Timestamp `json:"created_at"`
 	ID        UUID      `json:"id"`
 	Name      string    `json:"name"`
 	Scopes    []Scope   `json:"scopes"`
@@ -1580,7 +1579,7 @@ type TrendParameter string
 
 // TrendPoint defines model for TrendPoint.
 type TrendPoint struct {
-	AcquiredAt time.Time `json:"acquired_at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
 	CurveID    UUID      `json:"curve_id"`
 
 	// Evaluated Whether the rules were evaluated on this value (false for rejected curves and missing values).
@@ -1621,9 +1620,9 @@ type Verdict string
 
 // Verification defines model for Verification.
 type Verification struct {
-	At            time.Time `json:"at"`
+	At            Timestamp `json:"at"`
 	Concentration float64   `json:"concentration"`
-	CreatedAt     time.Time `json:"created_at"`
+	CreatedAt     Timestamp `json:"created_at"`
 	CreatedBy     string    `json:"created_by"`
 	CurveID       UUID      `json:"curve_id"`
 	Detail        string    `json:"detail"`
@@ -1678,7 +1677,7 @@ type VerificationList struct {
 // VerificationRequest defines model for VerificationRequest.
 type VerificationRequest struct {
 	// At When the standard was measured.
-	At time.Time `json:"at"`
+	At Timestamp `json:"at"`
 
 	// Concentration Nominal concentration, > 0, in the analyte's unit.
 	Concentration float64 `json:"concentration"`
@@ -1828,10 +1827,10 @@ type ListCurvesParams struct {
 	Verdict    *Verdict     `form:"verdict,omitempty" json:"verdict,omitempty"`
 
 	// From Earliest `acquired_at`, inclusive.
-	From *time.Time `form:"from,omitempty" json:"from,omitempty"`
+	From *Timestamp `form:"from,omitempty" json:"from,omitempty"`
 
 	// To Latest `acquired_at`, exclusive.
-	To *time.Time `form:"to,omitempty" json:"to,omitempty"`
+	To *Timestamp `form:"to,omitempty" json:"to,omitempty"`
 
 	// Limit Page size.
 	Limit *int `form:"limit,omitempty" json:"limit,omitempty"`
@@ -1845,7 +1844,7 @@ type GetCurveInForceParams struct {
 	Analyte Identifier `form:"analyte" json:"analyte"`
 
 	// At The moment, RFC 3339; now when absent.
-	At *time.Time `form:"at,omitempty" json:"at,omitempty"`
+	At *Timestamp `form:"at,omitempty" json:"at,omitempty"`
 }
 
 // GetMethodParams defines parameters for GetMethod.
@@ -1872,7 +1871,7 @@ type CreateRunParams struct {
 	Instrument *Identifier `form:"instrument,omitempty" json:"instrument,omitempty"`
 
 	// AcquiredAt CSV only (required then). When the run was acquired, RFC 3339.
-	AcquiredAt *time.Time `form:"acquired_at,omitempty" json:"acquired_at,omitempty"`
+	AcquiredAt *Timestamp `form:"acquired_at,omitempty" json:"acquired_at,omitempty"`
 
 	// Operator CSV only (optional). Who ran the instrument.
 	Operator *Operator `form:"operator,omitempty" json:"operator,omitempty"`
@@ -1889,10 +1888,10 @@ type GetTrendParams struct {
 	Parameter  *TrendParameter `form:"parameter,omitempty" json:"parameter,omitempty"`
 
 	// From Earliest `acquired_at`, inclusive.
-	From *time.Time `form:"from,omitempty" json:"from,omitempty"`
+	From *Timestamp `form:"from,omitempty" json:"from,omitempty"`
 
 	// To Latest `acquired_at`, exclusive.
-	To *time.Time `form:"to,omitempty" json:"to,omitempty"`
+	To *Timestamp `form:"to,omitempty" json:"to,omitempty"`
 
 	// Baseline How many approved curves, from the start of the window, make the baseline.
 	Baseline *int `form:"baseline,omitempty" json:"baseline,omitempty"`
@@ -1905,10 +1904,10 @@ type GetTrendPlotSVGParams struct {
 	Parameter  *TrendParameter `form:"parameter,omitempty" json:"parameter,omitempty"`
 
 	// From Earliest `acquired_at`, inclusive.
-	From *time.Time `form:"from,omitempty" json:"from,omitempty"`
+	From *Timestamp `form:"from,omitempty" json:"from,omitempty"`
 
 	// To Latest `acquired_at`, exclusive.
-	To *time.Time `form:"to,omitempty" json:"to,omitempty"`
+	To *Timestamp `form:"to,omitempty" json:"to,omitempty"`
 
 	// Baseline How many approved curves, from the start of the window, make the baseline.
 	Baseline *int `form:"baseline,omitempty" json:"baseline,omitempty"`
