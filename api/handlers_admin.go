@@ -156,7 +156,7 @@ func methodOut(m *lab.Method) oapi.Method {
 			LimitSigma: oapi.SigmaBasis(m.Weights.LimitSigma)},
 		Confidence:  m.Confidence,
 		CreatedAt:   oapi.NewTimestamp(m.CreatedAt),
-		CreatedBy:   m.CreatedBy,
+		Actor:       m.CreatedBy,
 		Description: m.Description,
 		Analytes:    make([]oapi.Analyte, 0, len(m.Analytes)),
 		Acceptance: oapi.AcceptancePolicy{

@@ -16,7 +16,7 @@ func (s *Server) CreateVerification(ctx context.Context, req oapi.CreateVerifica
 	b := req.Body
 	v, err := s.lab.Verify(ctx, p, lab.VerificationInput{
 		CurveID: req.ID.String(), Kind: string(b.Kind), Level: string(b.Level), Concentration: b.Concentration,
-		Responses: b.Responses, At: b.At.Time,
+		Responses: b.Responses, At: b.AcquiredAt.Time,
 	})
 	if err != nil {
 		return nil, err
@@ -42,7 +42,7 @@ func verificationOut(v *lab.Verification) oapi.Verification {
 	return oapi.Verification{ID: uuidOf(v.ID), CurveID: uuidOf(v.CurveID), Kind: oapi.VerificationKind(v.Kind),
 		Level: v.Level, Concentration: v.Concentration, Responses: nonNil(v.Responses), Found: v.Found,
 		RecoveryPct: v.RecoveryPct, DifferencePct: v.DifferencePct, LimitPct: v.LimitPct, Passed: v.Passed,
-		Detail: v.Detail, Source: calib.VerificationSource, At: oapi.NewTimestamp(v.At), CreatedAt: oapi.NewTimestamp(v.CreatedAt), CreatedBy: v.CreatedBy}
+		Detail: v.Detail, Source: calib.VerificationSource, AcquiredAt: oapi.NewTimestamp(v.At), CreatedAt: oapi.NewTimestamp(v.CreatedAt), Actor: v.CreatedBy}
 }
 
 // CreateExclusion refits a curve without some of its readings as a new

@@ -91,7 +91,7 @@ func resultsOut(rs []lab.Result) []oapi.SampleResult {
 			StandardError: r.StandardError, IntervalMethod: r.IntervalMethod, Flags: nonNilS(r.Flags),
 			Interval:     oapi.Interval{Low: r.IntervalLow, High: r.IntervalHigh, Level: r.IntervalLevel, Bounded: r.IntervalBounded},
 			ReleaseState: oapi.ReleaseState(r.ReleaseState), ReleaseReason: r.ReleaseReason,
-			StateChangedAt: oapi.NewTimestamp(r.StateChangedAt), CreatedAt: oapi.NewTimestamp(r.CreatedAt), CreatedBy: r.CreatedBy,
+			StateChangedAt: oapi.NewTimestamp(r.StateChangedAt), CreatedAt: oapi.NewTimestamp(r.CreatedAt), Actor: r.CreatedBy,
 		})
 	}
 	return out

@@ -161,7 +161,7 @@ func (s *Server) GetRun(ctx context.Context, req oapi.GetRunRequestObject) (oapi
 	}
 	out := oapi.GetRun200JSONResponse{
 		ID: uuidOf(r.ID), Method: r.Method, MethodRevision: r.MethodRevision, Instrument: r.Instrument,
-		AcquiredAt: oapi.NewTimestamp(r.AcquiredAt), CreatedAt: oapi.NewTimestamp(r.ReceivedAt), CreatedBy: r.ReceivedBy,
+		AcquiredAt: oapi.NewTimestamp(r.AcquiredAt), CreatedAt: oapi.NewTimestamp(r.ReceivedAt), Actor: r.ReceivedBy,
 		Format: oapi.RunFormat(r.SourceFormat), Cautions: calib.Cautions(),
 		Standards: make([]oapi.Standard, 0, len(r.Standards)),
 		Samples:   make([]oapi.RunSample, 0, len(r.Samples)),
