@@ -230,7 +230,7 @@ func TestScopeMatrix(t *testing.T) {
 		},
 		"createVerification": func(*testing.T) (call, int) {
 			return jsonCall(http.MethodPost, curve+"/verifications", map[string]any{"level": "CCV", "concentration": 2,
-				"responses": []float64{1.5}, "kind": "continuing", "at": baseTime.Add(2 * time.Hour).Format(time.RFC3339)}), http.StatusCreated
+				"responses": []float64{1.5}, "kind": "continuing", "acquired_at": baseTime.Add(2 * time.Hour).Format(time.RFC3339)}), http.StatusCreated
 		},
 		"listVerifications": func(*testing.T) (call, int) {
 			return call{method: http.MethodGet, path: curve + "/verifications"}, http.StatusOK

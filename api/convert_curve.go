@@ -35,8 +35,8 @@ func curveOut(c *lab.Curve) oapi.Curve {
 		Status:             oapi.CurveStatus(c.Status),
 		EngineVersion:      r.Engine,
 		Cautions:           calib.Cautions(),
-		AcquiredAt:         c.AcquiredAt,
-		CreatedAt:          c.CreatedAt,
+		AcquiredAt:         oapi.NewTimestamp(c.AcquiredAt),
+		CreatedAt:          oapi.NewTimestamp(c.CreatedAt),
 		Points:             make([]oapi.CurvePoint, 0, len(r.Points)),
 		Checks:             make([]oapi.Check, 0, len(r.Checks)),
 		WeightCandidates:   make([]oapi.WeightCandidate, 0, len(r.WeightCandidates)),
@@ -124,7 +124,7 @@ func curveOut(c *lab.Curve) oapi.Curve {
 		out.RevisionOf = &rev
 	}
 	if c.Review != nil {
-		rv := &oapi.Review{Actor: c.Review.Actor, At: c.Review.At, Decision: oapi.ReviewDecision(c.Review.Decision)}
+		rv := &oapi.Review{Actor: c.Review.Actor, At: oapi.NewTimestamp(c.Review.At), Decision: oapi.ReviewDecision(c.Review.Decision)}
 		if c.Review.Reason != "" {
 			reason := c.Review.Reason
 			rv.Reason = &reason
@@ -139,7 +139,7 @@ func summaryOut(c *lab.CurveSummary, failed []string) oapi.CurveSummary {
 		ID: uuidOf(c.ID), RunID: uuidOf(c.RunID), Method: c.Method, MethodRevision: c.MethodRevision,
 		Instrument: c.Instrument, Analyte: c.Analyte, Unit: c.Unit, Model: oapi.Model(c.Model),
 		Weighting: oapi.Weighting(c.Weighting), Verdict: oapi.Verdict(c.Verdict), Status: oapi.CurveStatus(c.Status),
-		AcquiredAt: c.AcquiredAt, CreatedAt: c.CreatedAt, RSquared: c.RSquared, FailedChecks: nonNilS(failed),
+		AcquiredAt: oapi.NewTimestamp(c.AcquiredAt), CreatedAt: oapi.NewTimestamp(c.CreatedAt), RSquared: c.RSquared, FailedChecks: nonNilS(failed),
 	}
 }
 

@@ -190,7 +190,10 @@ func TestCurveHistory(t *testing.T) {
 				t.Fatalf("page of %d, limit 3", len(page.Curves))
 			}
 			out = append(out, page.Curves...)
-			if page.NextCursor == nil {
+			if page.HasMore != (page.NextCursor != nil) {
+				t.Fatalf("has_more %v with next_cursor %v: one says there is a next page, the other not", page.HasMore, page.NextCursor)
+			}
+			if !page.HasMore {
 				return out
 			}
 			cursor = *page.NextCursor
@@ -238,7 +241,7 @@ func TestCurveHistory(t *testing.T) {
 				}
 				if i > 0 { // newest first: acquired_at descending, then id descending
 					p := got[i-1]
-					if p.AcquiredAt.Before(c.AcquiredAt) || (p.AcquiredAt.Equal(c.AcquiredAt) && p.ID.String() < id) {
+					if p.AcquiredAt.Before(c.AcquiredAt.Time) || (p.AcquiredAt.Equal(c.AcquiredAt.Time) && p.ID.String() < id) {
 						t.Errorf("curve %d (%v %s) after %v %s is out of order", i, c.AcquiredAt, id, p.AcquiredAt, p.ID)
 					}
 				}
@@ -426,7 +429,7 @@ func TestReviewAndAudit(t *testing.T) {
 		if ev.Actor == "" || ev.Detail == "" || ev.At.IsZero() {
 			t.Errorf("event %d incomplete: %+v", i, ev)
 		}
-		if i > 0 && ev.At.Before(audit.Events[i-1].At) {
+		if i > 0 && ev.At.Before(audit.Events[i-1].At.Time) {
 			t.Errorf("event %d is older than event %d", i, i-1)
 		}
 	}

@@ -158,8 +158,8 @@ func methodOut(m *lab.Method) oapi.Method {
 		WeightingOptions: oapi.WeightingOptions{MinReplicates: m.Weights.MinReplicates,
 			LimitSigma: oapi.SigmaBasis(m.Weights.LimitSigma)},
 		Confidence:  m.Confidence,
-		CreatedAt:   m.CreatedAt,
-		CreatedBy:   m.CreatedBy,
+		CreatedAt:   oapi.NewTimestamp(m.CreatedAt),
+		Actor:       m.CreatedBy,
 		Description: m.Description,
 		Analytes:    make([]oapi.Analyte, 0, len(m.Analytes)),
 		Acceptance: oapi.AcceptancePolicy{
@@ -209,7 +209,7 @@ func (s *Server) CreateToken(ctx context.Context, req oapi.CreateTokenRequestObj
 		return nil, err
 	}
 	out := oapi.CreateToken201JSONResponse{ID: uuidOf(id), Name: string(req.Body.Name), Token: secret,
-		CreatedAt: time.Now().UTC()}
+		CreatedAt: oapi.NewTimestamp(time.Now().UTC())}
 	for _, sc := range scopes {
 		out.Scopes = append(out.Scopes, oapi.Scope(sc))
 	}

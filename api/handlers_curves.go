@@ -25,10 +25,10 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 		f.Verdict = string(*q.Verdict)
 	}
 	if q.From != nil {
-		f.From = *q.From
+		f.From = q.From.Time
 	}
 	if q.To != nil {
-		f.To = *q.To
+		f.To = q.To.Time
 	}
 	if q.Limit != nil {
 		f.Limit = *q.Limit
@@ -46,6 +46,7 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 	}
 	if page.NextCursor != "" {
 		out.NextCursor = &page.NextCursor
+		out.HasMore = true
 	}
 	return out, nil
 }
@@ -175,7 +176,7 @@ func (s *Server) GetCurveAudit(ctx context.Context, req oapi.GetCurveAuditReques
 	}
 	out := oapi.GetCurveAudit200JSONResponse{Events: make([]oapi.AuditEvent, 0, len(events))}
 	for _, e := range events {
-		out.Events = append(out.Events, oapi.AuditEvent{At: e.At, Actor: e.Actor, Action: e.Action, Detail: auditText(e)})
+		out.Events = append(out.Events, oapi.AuditEvent{At: oapi.NewTimestamp(e.At), Actor: e.Actor, Action: e.Action, Detail: auditText(e)})
 	}
 	return out, nil
 }

@@ -2,6 +2,7 @@ package api
 
 import (
 	"context"
+	"time"
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/lab"
@@ -12,8 +13,8 @@ import (
 func (s *Server) CreateStandardMaterial(ctx context.Context, req oapi.CreateStandardMaterialRequestObject) (oapi.CreateStandardMaterialResponseObject, error) {
 	p := mustPrincipal(ctx)
 	b := req.Body
-	in := lab.MaterialInput{Code: string(b.Code), Kind: string(b.Kind), ExpiresAt: b.ExpiresAt, Expanded: b.ExpandedUncertainty,
-		K: b.CoverageFactor, Tolerance: b.Tolerance, Lot: deref(b.Lot), Supplier: deref(b.Supplier), PreparedAt: b.PreparedAt}
+	in := lab.MaterialInput{Code: string(b.Code), Kind: string(b.Kind), ExpiresAt: b.ExpiresAt.Time, Expanded: b.ExpandedUncertainty,
+		K: b.CoverageFactor, Tolerance: b.Tolerance, Lot: deref(b.Lot), Supplier: deref(b.Supplier), PreparedAt: timeOf(b.PreparedAt)}
 	if b.Analyte != nil {
 		in.Analyte = *b.Analyte
 	}
@@ -68,9 +69,9 @@ func (s *Server) GetStandardMaterial(ctx context.Context, req oapi.GetStandardMa
 func materialOut(m *lab.Material) oapi.StandardMaterial {
 	out := oapi.StandardMaterial{Code: m.Code, Kind: oapi.StandardMaterialKind(m.Kind), Analyte: m.Analyte, Unit: m.Unit,
 		Value: m.Value, ExpandedUncertainty: m.Expanded, CoverageFactor: m.K, Tolerance: m.Tolerance,
-		RelativeUncertainty: m.RelativeUncertainty, Lot: m.Lot, Supplier: m.Supplier, ExpiresAt: m.ExpiresAt,
-		PreparedAt: m.PreparedAt, Preparation: make([]oapi.PreparationStep, 0, len(m.Preparation)),
-		CreatedAt: m.CreatedAt, CreatedBy: m.CreatedBy}
+		RelativeUncertainty: m.RelativeUncertainty, Lot: m.Lot, Supplier: m.Supplier, ExpiresAt: oapi.NewTimestamp(m.ExpiresAt),
+		PreparedAt: oapi.TimestampPtr(m.PreparedAt), Preparation: make([]oapi.PreparationStep, 0, len(m.Preparation)),
+		CreatedAt: oapi.NewTimestamp(m.CreatedAt), Actor: m.CreatedBy}
 	if m.Level != "" {
 		out.Level = &m.Level
 	}
@@ -82,4 +83,13 @@ func materialOut(m *lab.Material) oapi.StandardMaterial {
 			FinalMl: st.FinalML, FinalTolMl: st.FinalTolML})
 	}
 	return out
+}
+
+// timeOf is the time a request's optional timestamp holds, nil when absent.
+func timeOf(t *oapi.Timestamp) *time.Time {
+	if t == nil {
+		return nil
+	}
+	v := t.Time
+	return &v
 }

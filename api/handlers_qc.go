@@ -15,7 +15,7 @@ func (s *Server) CreateVerification(ctx context.Context, req oapi.CreateVerifica
 	b := req.Body
 	v, err := s.lab.Verify(ctx, p, lab.VerificationInput{
 		CurveID: req.ID.String(), Kind: string(b.Kind), Level: string(b.Level), Concentration: b.Concentration,
-		Responses: b.Responses, At: b.At,
+		Responses: b.Responses, At: b.AcquiredAt.Time,
 	})
 	if err != nil {
 		return nil, err
@@ -41,7 +41,7 @@ func verificationOut(v *lab.Verification) oapi.Verification {
 	return oapi.Verification{ID: uuidOf(v.ID), CurveID: uuidOf(v.CurveID), Kind: oapi.VerificationKind(v.Kind),
 		Level: v.Level, Concentration: v.Concentration, Responses: nonNil(v.Responses), Found: v.Found,
 		RecoveryPct: v.RecoveryPct, DifferencePct: v.DifferencePct, LimitPct: v.LimitPct, Passed: v.Passed,
-		Detail: v.Detail, Source: calib.VerificationSource, At: v.At, CreatedAt: v.CreatedAt, CreatedBy: v.CreatedBy}
+		Detail: v.Detail, Source: calib.VerificationSource, AcquiredAt: oapi.NewTimestamp(v.At), CreatedAt: oapi.NewTimestamp(v.CreatedAt), Actor: v.CreatedBy}
 }
 
 // CreateExclusion refits a curve without some of its readings as a new
@@ -91,7 +91,7 @@ func (s *Server) curveWithExclusion(ctx context.Context, c *lab.Curve) (oapi.Cur
 	if err != nil {
 		return oapi.Curve{}, err
 	}
-	ex := &oapi.Exclusion{RevisionOf: uuidOf(e.RevisionOf), Reason: e.Reason, Actor: e.Actor, At: e.At}
+	ex := &oapi.Exclusion{RevisionOf: uuidOf(e.RevisionOf), Reason: e.Reason, Actor: e.Actor, At: oapi.NewTimestamp(e.At)}
 	if e.RangeReason != "" {
 		rr := e.RangeReason
 		ex.RangeReason = &rr
@@ -111,7 +111,7 @@ func (s *Server) curveWithExclusion(ctx context.Context, c *lab.Curve) (oapi.Cur
 func (s *Server) GetCurveInForce(ctx context.Context, req oapi.GetCurveInForceRequestObject) (oapi.GetCurveInForceResponseObject, error) {
 	at := s.lab.Now().UTC()
 	if req.Params.At != nil {
-		if err := lab.CheckTimestamp(lab.InQuery, "/at", *req.Params.At); err != nil {
+		if err := lab.CheckTimestamp(lab.InQuery, "/at", req.Params.At.Time); err != nil {
 			return nil, err
 		}
 		at = req.Params.At.UTC()
@@ -121,7 +121,7 @@ func (s *Server) GetCurveInForce(ctx context.Context, req oapi.GetCurveInForceRe
 		return nil, err
 	}
 	out := oapi.GetCurveInForce200JSONResponse{Curve: summaryOut(&in.Curve, in.Curve.FailedChecks), Basis: in.Basis,
-		At: at, ExpiresAt: in.ExpiresAt, Cautions: calib.Cautions()}
+		At: oapi.NewTimestamp(at), ExpiresAt: oapi.TimestampPtr(in.ExpiresAt), Cautions: calib.Cautions()}
 	if in.LastVerification != nil {
 		v := verificationOut(in.LastVerification)
 		out.LastVerification = &v
@@ -134,7 +134,7 @@ func (s *Server) GetCurveInForce(ctx context.Context, req oapi.GetCurveInForceRe
 func (s *Server) CreateInstrumentPredictions(ctx context.Context, req oapi.CreateInstrumentPredictionsRequestObject) (oapi.CreateInstrumentPredictionsResponseObject, error) {
 	at := s.lab.Now().UTC()
 	if req.Body.At != nil {
-		if err := lab.CheckTimestamp(lab.InBody, "/at", *req.Body.At); err != nil {
+		if err := lab.CheckTimestamp(lab.InBody, "/at", req.Body.At.Time); err != nil {
 			return nil, err
 		}
 		at = req.Body.At.UTC()

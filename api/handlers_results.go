@@ -65,14 +65,14 @@ func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEvents
 	if req.Params.Limit != nil {
 		limit = *req.Params.Limit
 	}
-	page, err := s.lab.ResultFeed(ctx, deref(req.Params.Since), limit)
+	page, err := s.lab.ResultFeed(ctx, deref(req.Params.Cursor), limit)
 	if err != nil {
 		return nil, err
 	}
 	out := oapi.ListResultEvents200JSONResponse{Events: make([]oapi.ResultEvent, 0, len(page.Events)),
 		NextCursor: page.NextCursor, HasMore: page.More, Cautions: calib.Cautions()}
 	for _, e := range page.Events {
-		oe := oapi.ResultEvent{Seq: e.Seq, At: e.At, Kind: oapi.ResultEventKind(e.Kind), Cause: e.Cause,
+		oe := oapi.ResultEvent{Seq: e.Seq, At: oapi.NewTimestamp(e.At), Kind: oapi.ResultEventKind(e.Kind), Cause: e.Cause,
 			ReleaseState: oapi.ReleaseState(e.State), Reason: e.Reason, ResultID: e.ResultID, SampleID: e.SampleID,
 			RunID: uuidOf(e.RunID), CurveID: uuidOf(e.CurveID), Analyte: e.Analyte, Unit: e.Unit, Concentration: e.Concentration}
 		if e.Previous != "" {
@@ -89,12 +89,12 @@ func resultsOut(rs []lab.Result) []oapi.SampleResult {
 	for _, r := range rs {
 		out = append(out, oapi.SampleResult{
 			ID: r.ID, SampleID: r.SampleID, RunID: uuidOf(r.RunID), CurveID: uuidOf(r.CurveID), Analyte: r.Analyte,
-			Unit: r.Unit, AcquiredAt: r.AcquiredAt, Responses: nonNil(r.Responses), Readings: len(r.Responses),
+			Unit: r.Unit, AcquiredAt: oapi.NewTimestamp(r.AcquiredAt), Responses: nonNil(r.Responses), Readings: len(r.Responses),
 			MeanResponse: r.MeanResponse, Dilution: r.Dilution, Concentration: r.Concentration,
 			StandardError: r.StandardError, IntervalMethod: r.IntervalMethod, Flags: nonNilS(r.Flags),
 			Interval:     oapi.Interval{Low: r.IntervalLow, High: r.IntervalHigh, Level: r.IntervalLevel, Bounded: r.IntervalBounded},
 			ReleaseState: oapi.ReleaseState(r.ReleaseState), ReleaseReason: r.ReleaseReason,
-			StateChangedAt: r.StateChangedAt, CreatedAt: r.CreatedAt, CreatedBy: r.CreatedBy,
+			StateChangedAt: oapi.NewTimestamp(r.StateChangedAt), CreatedAt: oapi.NewTimestamp(r.CreatedAt), Actor: r.CreatedBy,
 		})
 	}
 	return out

@@ -132,7 +132,7 @@ func runInput(body *oapi.RunRequest) lab.RunInput {
 	in := lab.RunInput{
 		Method:     string(body.Method),
 		Instrument: string(body.Instrument),
-		AcquiredAt: body.AcquiredAt,
+		AcquiredAt: body.AcquiredAt.Time,
 		Operator:   deref(body.Operator),
 		Standards:  make([]lab.Standard, 0, len(body.Standards)),
 	}
@@ -164,7 +164,7 @@ func (s *Server) GetRun(ctx context.Context, req oapi.GetRunRequestObject) (oapi
 	}
 	out := oapi.GetRun200JSONResponse{
 		ID: uuidOf(r.ID), Method: r.Method, MethodRevision: r.MethodRevision, Instrument: r.Instrument,
-		AcquiredAt: r.AcquiredAt, CreatedAt: r.ReceivedAt, CreatedBy: r.ReceivedBy,
+		AcquiredAt: oapi.NewTimestamp(r.AcquiredAt), CreatedAt: oapi.NewTimestamp(r.ReceivedAt), Actor: r.ReceivedBy,
 		Format: oapi.RunFormat(r.SourceFormat), Cautions: calib.Cautions(),
 		Standards: make([]oapi.Standard, 0, len(r.Standards)),
 		Samples:   make([]oapi.RunSample, 0, len(r.Samples)),

@@ -4,7 +4,6 @@ import (
 	"bytes"
 	"context"
 	"fmt"
-	"time"
 
 	"curvekeeper/api/curveplot"
 	"curvekeeper/api/oapi"
@@ -12,16 +11,16 @@ import (
 	"curvekeeper/lab"
 )
 
-func trendQueryOf(instrument, analyte string, param *oapi.TrendParameter, from, to *time.Time, baseline *int) lab.TrendQuery {
+func trendQueryOf(instrument, analyte string, param *oapi.TrendParameter, from, to *oapi.Timestamp, baseline *int) lab.TrendQuery {
 	q := lab.TrendQuery{Instrument: instrument, Analyte: analyte}
 	if param != nil {
 		q.Parameter = string(*param)
 	}
 	if from != nil {
-		q.From = *from
+		q.From = from.Time
 	}
 	if to != nil {
-		q.To = *to
+		q.To = to.Time
 	}
 	if baseline != nil {
 		q.BaselineN = *baseline
@@ -56,7 +55,7 @@ func trendOut(t *lab.Trend) oapi.Trend {
 			ActionLow: l.ActionLow, ActionHigh: l.ActionHigh}
 	}
 	for _, p := range t.Points {
-		op := oapi.TrendPoint{CurveID: uuidOf(p.Curve.ID), AcquiredAt: p.Curve.AcquiredAt, Status: oapi.CurveStatus(p.Curve.Status),
+		op := oapi.TrendPoint{CurveID: uuidOf(p.Curve.ID), AcquiredAt: oapi.NewTimestamp(p.Curve.AcquiredAt), Status: oapi.CurveStatus(p.Curve.Status),
 			Verdict: oapi.Verdict(p.Curve.Verdict), Evaluated: p.Evaluated, InBaseline: p.InBaseline,
 			Violations: make([]oapi.ControlRule, 0, len(p.Rules))}
 		if p.HasValue {

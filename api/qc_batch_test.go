@@ -45,7 +45,7 @@ func (f *qcFeed) poll() []qcEvent {
 	for {
 		path := fmt.Sprintf("/v1/results?limit=%d", f.limit)
 		if f.cursor != "" {
-			path += "&since=" + url.QueryEscape(f.cursor)
+			path += "&cursor=" + url.QueryEscape(f.cursor)
 		}
 		var page struct {
 			Events     []qcEvent
@@ -244,7 +244,7 @@ func TestQCLoopWholeBatch(t *testing.T) {
 		Cautions       []string
 	}
 	qcDecode(t, e.must(201, "POST", "/v1/curves/"+rev.ID+"/verifications", instrument, map[string]any{
-		"level": "CCV-5", "concentration": 5, "responses": []float64{(0.01 + 0.2*5) * 1.02}, "kind": "continuing", "at": qcStamp(30),
+		"level": "CCV-5", "concentration": 5, "responses": []float64{(0.01 + 0.2*5) * 1.02}, "kind": "continuing", "acquired_at": qcStamp(30),
 	}), &ccv)
 	if !ccv.Verification.Passed || ccv.Verification.LimitPct != 20 || ccv.Verification.DifferencePct == nil ||
 		math.Abs(*ccv.Verification.DifferencePct-2) > 0.5 || len(ccv.Cautions) == 0 {
@@ -266,7 +266,7 @@ func TestQCLoopWholeBatch(t *testing.T) {
 	// 4. A CCV measured at 08:50 reads 30 % high: S-05, acquired after it, is
 	// withheld; S-03 and S-04, acquired before, are not.
 	qcDecode(t, e.must(201, "POST", "/v1/curves/"+rev.ID+"/verifications", instrument, map[string]any{
-		"level": "CCV-5", "concentration": 5, "responses": []float64{(0.01 + 0.2*5) * 1.3}, "kind": "continuing", "at": qcStamp(50),
+		"level": "CCV-5", "concentration": 5, "responses": []float64{(0.01 + 0.2*5) * 1.3}, "kind": "continuing", "acquired_at": qcStamp(50),
 	}), &ccv)
 	if ccv.Verification.Passed || ccv.ResultsChanged != 1 {
 		t.Errorf("CCV 30 %% high: passed %v, results changed %d; want failed, 1", ccv.Verification.Passed, ccv.ResultsChanged)
@@ -298,7 +298,7 @@ func TestQCLoopWholeBatch(t *testing.T) {
 
 	// 6. A passing CCV at 09:10; a sample at 09:15 is releasable at once.
 	e.must(201, "POST", "/v1/curves/"+rev.ID+"/verifications", instrument, map[string]any{
-		"level": "CCV-5", "concentration": 5, "responses": []float64{0.01 + 0.2*5}, "kind": "continuing", "at": qcStamp(70),
+		"level": "CCV-5", "concentration": 5, "responses": []float64{0.01 + 0.2*5}, "kind": "continuing", "acquired_at": qcStamp(70),
 	})
 	addSamples(sample("S-07", 75, 0.8))
 	rs = runResults(t, e, lims, run.ID)

@@ -96,7 +96,7 @@ func TestQCRequestsRefused(t *testing.T) {
 		e.must(403, "POST", exclusions, instrument, map[string]any{"reason": "x", "points": []map[string]any{{"level": "L2"}}})
 		e.must(403, "GET", "/v1/runs/"+runID+"/results", instrument, nil)
 		e.must(403, "POST", "/v1/curves/"+curve+"/verifications", lims, map[string]any{
-			"level": "CCV", "concentration": 5, "responses": []float64{1.01}, "kind": "initial", "at": qcStamp(10)})
+			"level": "CCV", "concentration": 5, "responses": []float64{1.01}, "kind": "initial", "acquired_at": qcStamp(10)})
 	})
 
 	// Both ends with a range reason is accepted; then the original is no
@@ -106,13 +106,13 @@ func TestQCRequestsRefused(t *testing.T) {
 	b := e.must(409, "POST", exclusions, qa, map[string]any{"reason": "again", "points": []map[string]any{{"level": "L2", "replicate": 1}}})
 	wantRule(t, b, "path:id", "curve_is_current")
 	b = e.must(409, "POST", "/v1/curves/"+curve+"/verifications", instrument, map[string]any{
-		"level": "CCV", "concentration": 5, "responses": []float64{1.01}, "kind": "initial", "at": qcStamp(10)})
+		"level": "CCV", "concentration": 5, "responses": []float64{1.01}, "kind": "initial", "acquired_at": qcStamp(10)})
 	wantRule(t, b, "path:id", "curve_is_current")
 
 	// Verification on a rejected curve, and before its calibration.
 	_, rejected := qcRun(t, e, instrument, eight, 120)
 	e.must(422, "POST", "/v1/curves/"+rejected+"/verifications", instrument, map[string]any{
-		"level": "ICV", "concentration": 5, "responses": []float64{1.01}, "kind": "initial", "at": qcStamp(60)})
+		"level": "ICV", "concentration": 5, "responses": []float64{1.01}, "kind": "initial", "acquired_at": qcStamp(60)})
 	var v struct {
 		Verification struct {
 			Passed   bool
@@ -121,13 +121,13 @@ func TestQCRequestsRefused(t *testing.T) {
 	}
 	// 16 % high: passes the default ±20 % but not this method's ±15 %.
 	qcDecode(t, e.must(201, "POST", "/v1/curves/"+rejected+"/verifications", instrument, map[string]any{
-		"level": "ICV", "concentration": 5, "responses": []float64{1.01 * 1.16}, "kind": "initial", "at": qcStamp(125)}), &v)
+		"level": "ICV", "concentration": 5, "responses": []float64{1.01 * 1.16}, "kind": "initial", "acquired_at": qcStamp(125)}), &v)
 	if v.Verification.Passed || v.Verification.LimitPct != 15 {
 		t.Errorf("ICV 16 %% high under a ±15 %% method: %+v", v.Verification)
 	}
 	e.must(200, "POST", "/v1/curves/"+rejected+"/review", qa, map[string]any{"decision": "reject", "reason": "wrong eluent"})
 	b = e.must(409, "POST", "/v1/curves/"+rejected+"/verifications", instrument, map[string]any{
-		"level": "CCV", "concentration": 5, "responses": []float64{1.01}, "kind": "continuing", "at": qcStamp(130)})
+		"level": "CCV", "concentration": 5, "responses": []float64{1.01}, "kind": "continuing", "acquired_at": qcStamp(130)})
 	wantRule(t, b, "path:id", "curve_not_rejected")
 
 	// The curve in force expires by the method's maximum age (24 h).
@@ -150,6 +150,6 @@ func TestQCRequestsRefused(t *testing.T) {
 	b = e.must(422, "POST", "/v1/runs/"+runID+"/samples", instrument, map[string]any{"samples": []map[string]any{
 		{"id": "S-11", "analyte": "nitrate", "responses": []float64{1}, "acquired_at": qcStamp(-5)}}})
 	wantRule(t, b, "/samples/0/acquired_at", "")
-	b = e.must(400, "GET", "/v1/results?since=AAAA", lims, nil)
-	wantRule(t, b, "query:since", "")
+	b = e.must(400, "GET", "/v1/results?cursor=AAAA", lims, nil)
+	wantRule(t, b, "query:cursor", "")
 }

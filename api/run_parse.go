@@ -19,7 +19,7 @@ func (p *fastParser) run() (*oapi.RunRequest, bool) {
 		case memberInstrument:
 			return have.add(1) && p.strInto(&out.Instrument)
 		case memberAcquiredAt:
-			return have.add(2) && p.dateTimeInto(&out.AcquiredAt)
+			return have.add(2) && p.dateTimeInto(&out.AcquiredAt.Time)
 		case memberOperator:
 			out.Operator = new(string)
 			return have.add(3) && p.strInto(out.Operator)

@@ -19,6 +19,7 @@ import (
 	"net/http"
 	"net/http/httptest"
 	"net/url"
+	"regexp"
 	"strconv"
 	"strings"
 	"sync"
@@ -182,6 +183,7 @@ func (e *env) do(t testing.TB, c call) reply {
 	} else {
 		apitest.ValidateResponse(t, req, resp, b)
 	}
+	checkTimestamps(t, req, b)
 	if resp.Header.Get("X-Request-Id") == "" {
 		t.Errorf("%s %s → %d without X-Request-Id", c.method, c.path, resp.StatusCode)
 	}
@@ -629,4 +631,24 @@ func wantProblemAtLeast(t testing.TB, r reply, status int) api.Problem {
 		t.Fatalf("problem does not decode: %v", err)
 	}
 	return p
+}
+
+// A JSON string value (not text inside one, such as an audit detail quoting
+// a request) that starts like an RFC 3339 date-time, and the one form the
+// contract writes every time in: UTC, six fractional digits.
+var (
+	looksLikeTime = regexp.MustCompile(`[:,\[]"[0-9]{4}-[0-9]{2}-[0-9]{2}T[^"]*"`)
+	contractTime  = regexp.MustCompile(`^"[0-9]{4}-[0-9]{2}-[0-9]{2}T[0-9]{2}:[0-9]{2}:[0-9]{2}\.[0-9]{6}Z"$`)
+)
+
+// checkTimestamps holds every time in a JSON response to the contract's one
+// form.
+func checkTimestamps(t testing.TB, req *http.Request, body []byte) {
+	t.Helper()
+	for _, m := range looksLikeTime.FindAll(body, -1) {
+		m = m[1:] // the member's ':' or the array's ',' or '['
+		if !contractTime.Match(m) {
+			t.Errorf("%s %s: time %s is not RFC 3339 UTC with six fractional digits", req.Method, req.URL.Path, m)
+		}
+	}
 }

@@ -33,6 +33,9 @@ func requestValidator(spec *specValidator) echo.MiddlewareFunc {
 			if qaui.IsPath(c.Request().URL.Path) {
 				return next(c) // the QA pages check their own form input
 			}
+			if err := spec.query.check(c); err != nil {
+				return err
+			}
 			if c.Request().Method == http.MethodPost && decodedRoutes[c.Path()] {
 				return next(c) // decode.go: the route's own decode step validates
 			}
@@ -50,6 +53,7 @@ func requestValidator(spec *specValidator) echo.MiddlewareFunc {
 type specValidator struct {
 	router routers.Router
 	opts   *oapimw.Options
+	query  queryParams // every route's declared query parameters
 }
 
 func newSpecValidator(doc *openapi3.T) (*specValidator, error) {
@@ -68,7 +72,7 @@ func newSpecValidator(doc *openapi3.T) (*specValidator, error) {
 			return &echo.HTTPError{Code: http.StatusBadRequest, Internal: me}
 		},
 	}
-	return &specValidator{router: router, opts: opts}, nil
+	return &specValidator{router: router, opts: opts, query: newQueryParams(doc)}, nil
 }
 
 // validate returns nil when the request satisfies the spec, or the problem

@@ -98,7 +98,7 @@ func decodeFeedCursor(s string) (int64, error) {
 	}
 	b, err := base64.RawURLEncoding.DecodeString(s)
 	if err != nil || len(b) != 8 || int64(binary.BigEndian.Uint64(b)) < 0 {
-		return 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "since", "the cursor is not one this service issued")
+		return 0, lab.ParamError(lab.KindInvalid, lab.InQuery, "cursor", "the cursor is not one this service issued")
 	}
 	return int64(binary.BigEndian.Uint64(b)), nil
 }

@@ -53,8 +53,8 @@ func validCurve() oapi.Curve {
 		Limits:  oapi.Limits{Lod: ptr(0.05), Loq: ptr(0.15), CriticalValue: ptr(0.0009), CriticalConcentration: ptr(0.03), DetectionLimit: ptr(0.06)},
 		Range:   oapi.Range{Low: ptr(0.5), High: ptr(2.0)},
 		Verdict: oapi.VerdictPass, Status: oapi.CurveStatusApproved,
-		Review:     &oapi.Review{Decision: oapi.ReviewApprove, Actor: "qa-1", At: at.Add(time.Hour)},
-		AcquiredAt: at, CreatedAt: at.Add(time.Minute), Cautions: cautions, EngineVersion: "calib/1.0.0",
+		Review:     &oapi.Review{Decision: oapi.ReviewApprove, Actor: "qa-1", At: oapi.NewTimestamp(at.Add(time.Hour))},
+		AcquiredAt: oapi.NewTimestamp(at), CreatedAt: oapi.NewTimestamp(at.Add(time.Minute)), Cautions: cautions, EngineVersion: "calib/1.0.0",
 	}
 }
 

@@ -15,7 +15,6 @@ import (
 	"net/url"
 	"path"
 	"strings"
-	"time"
 
 	"github.com/getkin/kin-openapi/openapi3"
 	"github.com/labstack/echo/v4"
@@ -569,7 +568,7 @@ type AuditEvent struct {
 
 	// Actor Name of the token that acted.
 	Actor string    `json:"actor"`
-	At    time.Time `json:"at"`
+	At    Timestamp `json:"at"`
 
 	// Detail The particulars, including a reviewer's reason.
 	Detail string `json:"detail"`
@@ -667,7 +666,7 @@ type Cursor = string
 // why.
 type Curve struct {
 	// AcquiredAt When the run was acquired.
-	AcquiredAt time.Time `json:"acquired_at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
 	Analyte    string    `json:"analyte"`
 
 	// Cautions What the result is and is not: acceptance against configured default
@@ -687,7 +686,7 @@ type Curve struct {
 	Covariance [][]float64 `json:"covariance"`
 
 	// CreatedAt When the curve was fitted and stored.
-	CreatedAt time.Time `json:"created_at"`
+	CreatedAt Timestamp `json:"created_at"`
 
 	// Df Residual degrees of freedom, n − p.
 	Df int `json:"df"`
@@ -782,7 +781,7 @@ type Curve struct {
 // CurveInForce defines model for CurveInForce.
 type CurveInForce struct {
 	// At The moment asked about.
-	At time.Time `json:"at"`
+	At Timestamp `json:"at"`
 
 	// Basis Why this curve is in force, in words.
 	Basis string `json:"basis"`
@@ -795,7 +794,7 @@ type CurveInForce struct {
 	Curve    CurveSummary `json:"curve"`
 
 	// ExpiresAt When it leaves force by the method's maximum age; null without one.
-	ExpiresAt *time.Time `json:"expires_at"`
+	ExpiresAt *Timestamp `json:"expires_at"`
 
 	// LastVerification The latest verification at or before `at`; null when none.
 	LastVerification *Verification `json:"last_verification"`
@@ -810,8 +809,12 @@ type CurveList struct {
 	Cautions Cautions       `json:"cautions"`
 	Curves   []CurveSummary `json:"curves"`
 
-	// NextCursor Cursor of the next page; null on the last page.
-	NextCursor *string `json:"next_cursor"`
+	// HasMore Whether a next page exists at the time this page was read.
+	HasMore HasMore `json:"has_more"`
+
+	// NextCursor Pass as `cursor`, with the same filters, for the next page; null when
+	// the list has no further page.
+	NextCursor *NextCursor `json:"next_cursor"`
 }
 
 // CurvePoint One standard reading with its diagnostics; a diagnostic is null when it does not exist (no fit, or no root for back-calculation, or nominal 0 for relative error).
@@ -842,9 +845,9 @@ type CurveStatus string
 
 // CurveSummary defines model for CurveSummary.
 type CurveSummary struct {
-	AcquiredAt time.Time `json:"acquired_at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
 	Analyte    string    `json:"analyte"`
-	CreatedAt  time.Time `json:"created_at"`
+	CreatedAt  Timestamp `json:"created_at"`
 
 	// FailedChecks Names of the checks that did not pass (mandatory or advisory).
 	FailedChecks   []string `json:"failed_checks"`
@@ -886,7 +889,7 @@ type Dilution = float64
 // Exclusion Present on an exclusion revision.
 type Exclusion struct {
 	Actor string    `json:"actor"`
-	At    time.Time `json:"at"`
+	At    Timestamp `json:"at"`
 
 	// Points Every reading the revision excludes.
 	Points []struct {
@@ -924,6 +927,9 @@ type ExclusionRequest struct {
 // level that has fewer readings than the method's `min_replicates`.
 type FitFlag string
 
+// HasMore Whether a next page exists at the time this page was read.
+type HasMore = bool
+
 // Health defines model for Health.
 type Health struct {
 	Status HealthStatus `json:"status"`
@@ -941,7 +947,7 @@ type InstrumentPredictionRequest struct {
 	Analyte Identifier `json:"analyte"`
 
 	// At The moment whose curve in force is used; now when absent.
-	At *time.Time `json:"at,omitempty"`
+	At *Timestamp `json:"at,omitempty"`
 
 	// Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
 	Confidence *Confidence        `json:"confidence,omitempty"`
@@ -959,7 +965,7 @@ type Interval struct {
 // LateSampleInput defines model for LateSampleInput.
 type LateSampleInput struct {
 	// AcquiredAt When the sample was measured; the time received when absent.
-	AcquiredAt *time.Time `json:"acquired_at,omitempty"`
+	AcquiredAt *Timestamp `json:"acquired_at,omitempty"`
 
 	// Analyte A name of an instrument, analyte, method, level or sample.
 	Analyte Identifier `json:"analyte"`
@@ -1013,14 +1019,14 @@ type Limits struct {
 type Method struct {
 	// Acceptance Every threshold in force, defaults filled in.
 	Acceptance AcceptancePolicy `json:"acceptance"`
-	Analytes   []Analyte        `json:"analytes"`
-	Confidence float64          `json:"confidence"`
+
+	// Actor Name of the token that created this revision.
+	Actor      string    `json:"actor"`
+	Analytes   []Analyte `json:"analytes"`
+	Confidence float64   `json:"confidence"`
 
 	// CreatedAt When this revision was created.
-	CreatedAt time.Time `json:"created_at"`
-
-	// CreatedBy Name of the token that created this revision.
-	CreatedBy string `json:"created_by"`
+	CreatedAt Timestamp `json:"created_at"`
 
 	// Description Empty when none was given.
 	Description string `json:"description"`
@@ -1116,6 +1122,10 @@ type MethodRequestExpiredStandards string
 // Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 // y = b0 + b1·x + b2·x² (ISO 8466-2).
 type Model string
+
+// NextCursor Pass as `cursor`, with the same filters, for the next page; null when
+// the list has no further page.
+type NextCursor = string
 
 // Operator Who ran the instrument; an identifier that may also hold `@`.
 type Operator = string
@@ -1287,7 +1297,7 @@ type Responses = []Response
 // ResultEvent defines model for ResultEvent.
 type ResultEvent struct {
 	Analyte string    `json:"analyte"`
-	At      time.Time `json:"at"`
+	At      Timestamp `json:"at"`
 
 	// Cause `run.create`, `samples.add`, `curve.review`, `curve.verification` or `curve.exclusion`.
 	Cause         string          `json:"cause"`
@@ -1324,9 +1334,11 @@ type ResultFeed struct {
 	// before release.
 	Cautions Cautions      `json:"cautions"`
 	Events   []ResultEvent `json:"events"`
-	HasMore  bool          `json:"has_more"`
 
-	// NextCursor Pass as `since` for the next page; never null.
+	// HasMore Whether a next page exists at the time this page was read.
+	HasMore HasMore `json:"has_more"`
+
+	// NextCursor Pass as `cursor` for the next page; never null on the feed.
 	NextCursor string `json:"next_cursor"`
 }
 
@@ -1334,7 +1346,7 @@ type ResultFeed struct {
 type Review struct {
 	// Actor Name of the reviewer's token.
 	Actor    string         `json:"actor"`
-	At       time.Time      `json:"at"`
+	At       Timestamp      `json:"at"`
 	Decision ReviewDecision `json:"decision"`
 
 	// Reason Null when none was given.
@@ -1371,7 +1383,10 @@ type RuleViolation struct {
 
 // Run A run as stored.
 type Run struct {
-	AcquiredAt time.Time `json:"acquired_at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
+
+	// Actor Name of the token that posted it.
+	Actor string `json:"actor"`
 
 	// Cautions What the result is and is not: acceptance against configured default
 	// criteria from published guidance; the laboratory's accreditation,
@@ -1380,10 +1395,7 @@ type Run struct {
 	Cautions Cautions `json:"cautions"`
 
 	// CreatedAt When the run was stored.
-	CreatedAt time.Time `json:"created_at"`
-
-	// CreatedBy Name of the token that posted it.
-	CreatedBy string     `json:"created_by"`
+	CreatedAt Timestamp  `json:"created_at"`
 	Curves    []RunCurve `json:"curves"`
 
 	// Format The content type the run was posted in.
@@ -1437,7 +1449,7 @@ type RunCurve struct {
 
 // RunRequest defines model for RunRequest.
 type RunRequest struct {
-	AcquiredAt time.Time `json:"acquired_at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
 
 	// Instrument A name of an instrument, analyte, method, level or sample.
 	Instrument Identifier `json:"instrument"`
@@ -1499,13 +1511,13 @@ type RunSampleInput struct {
 
 // SampleResult A sample quantified against a curve when it was stored.
 type SampleResult struct {
-	AcquiredAt time.Time `json:"acquired_at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
+	Actor      string    `json:"actor"`
 	Analyte    string    `json:"analyte"`
 
 	// Concentration After dilution; null when the curve gave no value (see `flags`).
 	Concentration *float64  `json:"concentration"`
-	CreatedAt     time.Time `json:"created_at"`
-	CreatedBy     string    `json:"created_by"`
+	CreatedAt     Timestamp `json:"created_at"`
 
 	// CurveID The curve the concentration came from.
 	CurveID UUID `json:"curve_id"`
@@ -1539,7 +1551,7 @@ type SampleResult struct {
 	StandardError *float64     `json:"standard_error"`
 
 	// StateChangedAt When the release state or its reason last changed.
-	StateChangedAt time.Time `json:"state_changed_at"`
+	StateChangedAt Timestamp `json:"state_changed_at"`
 
 	// Unit UCUM code of the analyte's concentration unit, which `concentration`, `standard_error` and `interval` are in.
 	Unit string `json:"unit"`
@@ -1599,18 +1611,19 @@ type StandardInput struct {
 
 // StandardMaterial defines model for StandardMaterial.
 type StandardMaterial struct {
+	// Actor Name of the token that recorded it.
+	Actor               string               `json:"actor"`
 	Analyte             string               `json:"analyte"`
 	Code                string               `json:"code"`
 	CoverageFactor      *float64             `json:"coverage_factor,omitempty"`
-	CreatedAt           time.Time            `json:"created_at"`
-	CreatedBy           string               `json:"created_by"`
+	CreatedAt           Timestamp            `json:"created_at"`
 	ExpandedUncertainty *float64             `json:"expanded_uncertainty,omitempty"`
-	ExpiresAt           time.Time            `json:"expires_at"`
+	ExpiresAt           Timestamp            `json:"expires_at"`
 	Kind                StandardMaterialKind `json:"kind"`
 	Level               *string              `json:"level,omitempty"`
 	Lot                 string               `json:"lot"`
 	Preparation         []PreparationStep    `json:"preparation"`
-	PreparedAt          *time.Time           `json:"prepared_at,omitempty"`
+	PreparedAt          *Timestamp           `json:"prepared_at,omitempty"`
 	PreparedFrom        *string              `json:"prepared_from,omitempty"`
 
 	// RelativeUncertainty u(value)/value from the certificate and the preparation.
@@ -1640,14 +1653,14 @@ type StandardMaterialRequest struct {
 
 	// ExpandedUncertainty The certificate's expanded uncertainty U, with coverage_factor.
 	ExpandedUncertainty *float64             `json:"expanded_uncertainty,omitempty"`
-	ExpiresAt           time.Time            `json:"expires_at"`
+	ExpiresAt           Timestamp            `json:"expires_at"`
 	Kind                StandardMaterialKind `json:"kind"`
 
 	// Level The calibration level this material is (calibration_level only).
 	Level       *Identifier        `json:"level,omitempty"`
 	Lot         *string            `json:"lot,omitempty"`
 	Preparation *[]PreparationStep `json:"preparation,omitempty"`
-	PreparedAt  *time.Time         `json:"prepared_at,omitempty"`
+	PreparedAt  *Timestamp         `json:"prepared_at,omitempty"`
 
 	// PreparedFrom A name of an instrument, analyte, method, level or sample.
 	PreparedFrom *Identifier `json:"prepared_from,omitempty"`
@@ -1668,7 +1681,7 @@ type Text = string
 
 // TokenCreated defines model for TokenCreated.
 type TokenCreated struct {
-	CreatedAt time.Time `json:"created_at"`
+	CreatedAt Timestamp `json:"created_at"`
 	ID        UUID      `json:"id"`
 	Name      string    `json:"name"`
 	Scopes    []Scope   `json:"scopes"`
@@ -1729,7 +1742,7 @@ type TrendParameter string
 
 // TrendPoint defines model for TrendPoint.
 type TrendPoint struct {
-	AcquiredAt time.Time `json:"acquired_at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
 	CurveID    UUID      `json:"curve_id"`
 
 	// Evaluated Whether the rules were evaluated on this value (false for rejected curves and missing values).
@@ -1770,10 +1783,10 @@ type Verdict string
 
 // Verification defines model for Verification.
 type Verification struct {
-	At            time.Time `json:"at"`
+	AcquiredAt    Timestamp `json:"acquired_at"`
+	Actor         string    `json:"actor"`
 	Concentration float64   `json:"concentration"`
-	CreatedAt     time.Time `json:"created_at"`
-	CreatedBy     string    `json:"created_by"`
+	CreatedAt     Timestamp `json:"created_at"`
 	CurveID       UUID      `json:"curve_id"`
 	Detail        string    `json:"detail"`
 
@@ -1826,8 +1839,8 @@ type VerificationList struct {
 
 // VerificationRequest defines model for VerificationRequest.
 type VerificationRequest struct {
-	// At When the standard was measured.
-	At time.Time `json:"at"`
+	// AcquiredAt When the standard was measured.
+	AcquiredAt Timestamp `json:"acquired_at"`
 
 	// Concentration Nominal concentration, > 0, in the analyte's unit.
 	Concentration float64 `json:"concentration"`
@@ -1929,6 +1942,9 @@ type IdempotencyKey = string
 // Instrument A name of an instrument, analyte, method, level or sample.
 type Instrument = Identifier
 
+// PageCursor Opaque keyset cursor (base64url without padding).
+type PageCursor = Cursor
+
 // RunID defines model for RunID.
 type RunID = UUID
 
@@ -1974,16 +1990,16 @@ type ListCurvesParams struct {
 	Verdict    *Verdict     `form:"verdict,omitempty" json:"verdict,omitempty"`
 
 	// From Earliest `acquired_at`, inclusive.
-	From *time.Time `form:"from,omitempty" json:"from,omitempty"`
+	From *Timestamp `form:"from,omitempty" json:"from,omitempty"`
 
 	// To Latest `acquired_at`, exclusive.
-	To *time.Time `form:"to,omitempty" json:"to,omitempty"`
+	To *Timestamp `form:"to,omitempty" json:"to,omitempty"`
 
 	// Limit Page size.
 	Limit *int `form:"limit,omitempty" json:"limit,omitempty"`
 
-	// Cursor The `next_cursor` of the previous page.
-	Cursor *Cursor `form:"cursor,omitempty" json:"cursor,omitempty"`
+	// Cursor The `next_cursor` of the previous page; absent for the first page.
+	Cursor *PageCursor `form:"cursor,omitempty" json:"cursor,omitempty"`
 }
 
 // GetCurveInForceParams defines parameters for GetCurveInForce.
@@ -1991,7 +2007,7 @@ type GetCurveInForceParams struct {
 	Analyte Identifier `form:"analyte" json:"analyte"`
 
 	// At The moment, RFC 3339; now when absent.
-	At *time.Time `form:"at,omitempty" json:"at,omitempty"`
+	At *Timestamp `form:"at,omitempty" json:"at,omitempty"`
 }
 
 // GetMethodParams defines parameters for GetMethod.
@@ -2002,8 +2018,8 @@ type GetMethodParams struct {
 
 // ListResultEventsParams defines parameters for ListResultEvents.
 type ListResultEventsParams struct {
-	// Since The `next_cursor` of the previous page; absent for the start of the feed.
-	Since *Cursor `form:"since,omitempty" json:"since,omitempty"`
+	// Cursor The `next_cursor` of the previous page; absent for the first page.
+	Cursor *PageCursor `form:"cursor,omitempty" json:"cursor,omitempty"`
 
 	// Limit Page size.
 	Limit *int `form:"limit,omitempty" json:"limit,omitempty"`
@@ -2018,7 +2034,7 @@ type CreateRunParams struct {
 	Instrument *Identifier `form:"instrument,omitempty" json:"instrument,omitempty"`
 
 	// AcquiredAt CSV only (required then). When the run was acquired, RFC 3339.
-	AcquiredAt *time.Time `form:"acquired_at,omitempty" json:"acquired_at,omitempty"`
+	AcquiredAt *Timestamp `form:"acquired_at,omitempty" json:"acquired_at,omitempty"`
 
 	// Operator CSV only (optional). Who ran the instrument.
 	Operator *Operator `form:"operator,omitempty" json:"operator,omitempty"`
@@ -2035,10 +2051,10 @@ type GetTrendParams struct {
 	Parameter  *TrendParameter `form:"parameter,omitempty" json:"parameter,omitempty"`
 
 	// From Earliest `acquired_at`, inclusive.
-	From *time.Time `form:"from,omitempty" json:"from,omitempty"`
+	From *Timestamp `form:"from,omitempty" json:"from,omitempty"`
 
 	// To Latest `acquired_at`, exclusive.
-	To *time.Time `form:"to,omitempty" json:"to,omitempty"`
+	To *Timestamp `form:"to,omitempty" json:"to,omitempty"`
 
 	// Baseline How many approved curves, from the start of the window, make the baseline.
 	Baseline *int `form:"baseline,omitempty" json:"baseline,omitempty"`
@@ -2051,10 +2067,10 @@ type GetTrendPlotSVGParams struct {
 	Parameter  *TrendParameter `form:"parameter,omitempty" json:"parameter,omitempty"`
 
 	// From Earliest `acquired_at`, inclusive.
-	From *time.Time `form:"from,omitempty" json:"from,omitempty"`
+	From *Timestamp `form:"from,omitempty" json:"from,omitempty"`
 
 	// To Latest `acquired_at`, exclusive.
-	To *time.Time `form:"to,omitempty" json:"to,omitempty"`
+	To *Timestamp `form:"to,omitempty" json:"to,omitempty"`
 
 	// Baseline How many approved curves, from the start of the window, make the baseline.
 	Baseline *int `form:"baseline,omitempty" json:"baseline,omitempty"`
@@ -2546,11 +2562,11 @@ func (w *ServerInterfaceWrapper) ListResultEvents(ctx echo.Context) error {
 
 	// Parameter object where we will unmarshal all parameters from the context
 	var params ListResultEventsParams
-	// ------------- Optional query parameter "since" -------------
+	// ------------- Optional query parameter "cursor" -------------
 
-	err = runtime.BindQueryParameterWithOptions("form", true, false, "since", ctx.QueryParams(), &params.Since, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "cursor", ctx.QueryParams(), &params.Cursor, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
 	if err != nil {
-		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter since: %s", err))
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter cursor: %s", err))
 	}
 
 	// ------------- Optional query parameter "limit" -------------
@@ -8701,403 +8717,420 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P1dbxtJmi+If5X4q0/DVFWKpmS5qiyhgXH5pcvTdtkt2VVz/s1qZigzKMY4GcHKiJTErvLiLAZYzLmd",
-	"mwXO1QJnX657gEVjsXe19zOfYfuTLJ7niYiMTCYpkpZc1QM30GWRzIz3eN6f3/PDTqanM62Esmbn6Ied",
-	"ieC5KPHPE2HL+cOxFSV8yoXJSjmzUqudo51TkWmVG2Y1u+TSsjMx1qVgJbwi1Xl/J9kpxfeVLEW+c2TL",
-	"SiQ7JpuIKYemplLJaTXdORokO3Y+EztHO1JZcS7KnXfv3iU7M17yqbBuGI+q8kI8e7w4htcTwTL48Y5h",
-	"MocuJXw943ayk+woPsWG85VD+U+lGO8c7fzqbr0Kd+lXc/fNm2ePd2A8z3IxnWkrVDb/nZgvDuQhywop",
-	"lN3LJtoIxd6KOetxBu8zaRhn51rnLJtomYldZifcsil/K+AXWDAp8qGCIQpjmeFjccyMEMxOBNMzUXLo",
-	"5Y5hUZ/9ofKzpf2q5xuNdQ8G21h3fvVcqHM72TnaP/gigX0In2HVrRUltPnHPzzc+//zvT8N9h70R0d7",
-	"3/2wn+wffPHuP+2E7TK2lOqcFkcZW1ZToWz3DsnwO5O5UFaOpSgTxg2baWNFzi6lnTBpDSsrZZbtYt3J",
-	"trv5LHSOwz6p1LIzVVbqdk/UO3jfzLQyAk/4lzw/oe2HT5lW1q0mn80KmeEBuDsr9Vkhpp/+o4GB/rBm",
-	"j6/oLeq0OdUXvBjrcipyZubK8quEXZZanTPYYqZLxtkFLyrBdGWNzOk8UrNHbOrfHaq/P335dcI4oyPB",
-	"LieiFIwzVU3PRMnORKHVuUkYV6xSb5W+VGwsRZHDK+7EMV0OVcnVuWAXUhfcCvz1+0qUcxZoAd2bXAvD",
-	"lLYMlmYO9+BdsvNIq3Ehsw+6enhQhNFVmQH9MZZbwca6PJNAFfFHutA9TkSKleJCikuRM16UgufzhPGh",
-	"op/gCujKMs7G0iaMh5fhB1p4PhVM1ncbaYyxsiiYVEOY/vnE7rr1eIrDyIX60Ati9VuhWMGzt4aJC9g+",
-	"k+mZYIXEmy4VS6/2/NXZw99M2t9BKgIngRdPylKXH3LYvmMmoOc+g2mc6XzODJ8bplUxZ8Md2XhouMO4",
-	"yhubDMTiXbLztbZPdaXyD73uQJnycBzrSyKupLE4sld8Xmiev9b6OS/PxYceIK6ouMqEcLfDiPJClHcM",
-	"y7Qay/OqFDkr5FTSaE9FeSEz8UbxCy4LflZ88AHn3PIzbgTLuIKVPIO95tlE5EzpyyTMQWYCWLyZVNYC",
-	"+cv1pUqQoPXGSEMvS2mR6UuDrJCrzM3eQIu5O2NnIuOVEcgHQ9/SDBUQVq7ysznx/LZ4thfks67Juqfv",
-	"RpIczve11i+4mjumY34WMnHHhNtTAu2UhukLUeIKuJNwU9N9o3hlJ7qUfxIf9Gq+kMZIdZ7U7DIJTFCX",
-	"wBD0W5GzM8FLUdKqtCb97bff7j2s7EQoC6MUiwJL+iW+nRKr4IqlSKNSxq0t5VllBeudPH3EPvv8/mB3",
-	"tVjelu1o6WalzoQxcAmfKCvt/EOu4LeiKPaclCLVrLIkBZyVgr9F8bkqBNPj+DoeuxUwKZJFw+DaDpUe",
-	"j4XK4Yqi+FFT8KoQjm2+UaaazXRpRf5C5JK/xvX40CIFXok7hj2iXvdgFHA5gApp1VILGM8yMbOmjzKt",
-	"6wOG8BC/B2LzDJYNx57nEt7hxasSGrBSmJ2jMS+MaI+kfpvZSSnMRBe5OcaVxDEUYmxBLmQW1RgYklDn",
-	"UglUU8a8KizrmQkJe0VBrF8rfHAq7ETneBRn0Th+2Dnj2dtRxotsVOjLkdWFKGEEoxkJduIqKyojL8QL",
-	"rz3S+YXTwe3O0U6uK2AUCag59MD+YJB0KZskm8KW131OpRrNuDGjcckzWoYfVra9dssfZiYTPdUmEzk3",
-	"VmbSzke8mE2uPY0P8aF3CUk4sOkbvgey3kiPR2O56ZtTrnJuddmhTz+aCJAgL0GbZmMui6qkf+moXYgy",
-	"l5k9xg/aTkRpGAelI7+QRpdz1NusmJrrxoL9fM2ngsZz9Yxe2q/Xl5cln+8kO5WS31fC/Q675SYgio1n",
-	"fTUqze0eBTjKhbgQhXFKPz16P37vYNHyQi+WI/N9xUtilO9x/nVlCynKUab1WzPKb22yvh9jK1Tw/yRu",
-	"r6+yUmbD/b4QpRw7jrFICZrH/sdfP/4RtO7oFRL+eJmz3rNH39x99OibXTblcwa0lfFzLhUoH9YMldJT",
-	"CRoK6ux99thR4YNBwjhIQuzNKXvy6iE7/Xbvi8PP2AukwuyLwWDweKgyXsgzx1Hi7umKFfxMl3hV7xhH",
-	"vpkR1kDHTF86a9QtrPi78I0++0eRWVjQmjW90oXM5htytieolQamBnxprMtMJJ5vmZpjbcyiFqf6/gxn",
-	"E8ayxtvL2cQaL3cwiTXe6mQRa7zXYBCb0/MGBe8g12uNoEGs13mjQXq3orDrUNIN3mrRxTXebFK5NV7Y",
-	"hMaBjEt0rig0GMNAS+6keIb18oiILSdfKEpeO8x3sebzh3ijWkej68AuvTfLr2OyklisJgTtc9I8iYv3",
-	"sLFn3Vu/eIziC7ZyD7/rosL+eLQdIUaeK2wIdAdc4P7OSh4w6N+PeUB/MBjsd5yxh4oXcyuupfZNek0W",
-	"+/X9Aijo2Wut+PBM+0BhV+79zhWrcmmfXHg9cv051MyhpRqDInzJDcu1EgkT/fM+S8tK9bNScCvyNGEp",
-	"Wpf7Y2kbn/lsVuqL+JtSwDBFnvYXXTwJjEB3uACB0Hrdmwy/qJtzaKi7nRYV5VbsWTkVXc/mwnJZdNOP",
-	"GS+tzKqClyZhUmVFhXo99xb2Ek1L3GjV7/RYxdvG7Y6fYLITrp/rfek+PtfnG+6iuPAO1rU4WXRaFlhZ",
-	"awau5a6xPuIVDM8sOTxkwDZAYcFLqXJnZjhyVgW8w17IjOy0jiwPVVZKK0rJ2bjUUzarzgppwEJ6Xskc",
-	"Xu4QH3mWlSKXFglNAm7P86qAH7F/J1yevnyFlgU2K0UmcoFN0eayszm6hngBVzZnM1EarYYq+J8LwY1w",
-	"/lG/0gunayqV1/UWBQWUIjbcXtjCyop8caWfwuPgFSPrRwaNs0xXRc6cXdm/i6ulWAq8QOQpbAb2hSuT",
-	"0pFMyS1xOZlHR/tM60Jw1bw2C3NGm2r3hYrEYTwKMCJgPGhTPGaqKor2DCYcjopCR+El/m3DRLopPrRC",
-	"lnzSC1bLe+3jKkDNj+xHzoGOZnUaUS4y76UMBgI0DlxKI9zEYgvB4uKtwy0aIibtVLTaUWPkiumcSimC",
-	"5ZFuna2tZpmeCrxOnRTUwL0BCWTJPmIAgX8GtmYquME7i2phvJXvvWHd/K8eoT9xYZmS+pY0ZQ+3VCvJ",
-	"br3uXdEX8KNnRRHtmqGGeMTSWtoDnkfiXpoMVRqJevBLW8qD74KgBnRKagXfBdEMGykF/HIhRl50HZEJ",
-	"PmFpkNTwLWFkXvFiBNIafOFEMoOtTLXSViuZwS95Kcc27bPoW9YLawZE0B2YXeY2AU1j3p9sNRAWODeZ",
-	"LeYsNEIeFlilS12+BaaJbve+7xA9Tn6XGLdMqnNh7BG+osRlCLcxhZ7VvIGuJVd4mk8fB4M8+qzr8A/4",
-	"lZMcd8ewgwGbamMZkHhlh8pLJdSHSWrf97fC2HOwgZCYghfHsJ4RYqjS3z55ze5e7N+1pVC5SXf77Fnj",
-	"qrNKFcKYmHQU0qDxgnEzVGFRE3cX4eVg38arMgaZAoQbxfYHrDXOoUIna+L7oQbqreohUadvS0HeBdYi",
-	"mOC3T4PeM5JqBLJR6klxczNqSlxWyrk40ALkG2BTjly5MMfRrO8YloqrGVzXcE5N6siotEPVHHJ9vnQZ",
-	"1jLBUSPNhTV0dh9VTZdoVE1dqkOLivUgd712kp1Y8Vlyt2IlCJ+Kblat6+BI/NnfSXbwkBORai51RHIc",
-	"sU12rvZgZnsXvMQ1hikiEXoBQVNumvSFnyt+es6zty/HT6X1X3y1OGf8/kuevX3UmDd+fXIa5k6f3QKc",
-	"ujE/cdPHH59Fa+CepoU4oXXA717Wi0HjjVYEv3jslgU/+H7MM/UYV4bia+COkoGwiwB742MWPwiyOVHk",
-	"cOcrJW03s4ltgvX/rrHHQtyPRPGwgx9e6j0jc7in4SlSSIE84eG54IVJ2KB/H+jloP/gwYNrddUHDx40",
-	"tNX73aOypS6eA/czG5onTyficsJLFLehEfKEG9Z7dvqSff7F54O9g13PxUPMEMQKFFKJfgfT7tIlRxN5",
-	"PlnTtuPeKPTlmi/g/os1H77kpZLqfJMB+VfWHVFLTHHDa7bTGkhj1klj0TpFE9qqk6roFE5q7gXyXi98",
-	"FJbxop+wR4VUffZoIqZ9dvA56+0/+GJ/lx0+uLd7xNL9vQOTDlHQpmC8MzHXKmc//fkAGG3PjXv3GB69",
-	"Z1L0zoZn7rHTx8csPYBGmL3UwNuVEVkFBMU/Fjg1tojn7ZilJ3uH9A6LXkmg+aHiZ/pCsE/xee9GR0kb",
-	"o/0u2V//+V8OqOfDvX2TsrGuSrbY81CFrvfjrvcHVymzQjVecc5jfBqjEfU4iB1NPgRLtpPswHLsJDsH",
-	"9Amms5PswHjgt8HVmhQfNnWfWoC/7vm/DsJ3J4f+r8P98By0DyejKk2X5eTljH9fCQjhM8KCHGF0yXpw",
-	"jT87rMr6as+AcqhzNHBGsbv39w/Wit0d7X336X/qUiMwonrTkABGZiQSe/rs2yCFCA6DNE2l1j0M9qCi",
-	"APE202I8lpkUyqLs2+TnJiUtN9MXvJQgvKfo0hXTmZ0nJNrSjTZkZVICWodu8DkgewlLneKHklMKDuM0",
-	"ce2iRxm156EC7RmPTJs4EpkYcdupttVCFyi8/ukmy1hl0uK1CXPhtyyy1KxUP/1z8A7OaTPnSJdjJN6Z",
-	"xYk/U2yqc1Hsie8rMtDrMhflEQOOw0v2h7NBws72v0vcFyNdynOp2B/wu+8rnpcclFH3XMLODr5rOOjX",
-	"88M4c829ruEvFwIedbB+2MQzUkVy+Ow17yASrOVOSHbqo9rVr/8NhPFSXvmO47VOmPnpX3v/8P/+n//l",
-	"23/Y/ev/+H//9H8lrNSXBsSm6Dla78aS3djarV5YsiOvvg4ufpmbcONVzozVG92MfLzYg5dkWS7OSyEM",
-	"rOC4FCLX04Qp4DFsFtlIIh8bRSKNLkRpOsVVTBuJHN70PJGVoG7B3DAWm+zq+Pzd/f6gP+i2kTvvt1bX",
-	"XcMn4cF3yc644Oemy2aYWcP4GUZY0UBoeM7GpbQ3ca0d6vJU2qcFP++6/xPBL6QwlrS36xpC3ed0wku0",
-	"gMl8vZSHJM7g6LROBqdpcykeS2OlyizdX+NVijHpEasSiZz96dqVcXI63AZUlDuHRz+NwAa9/FDRQ8w/",
-	"1H0/gLc3hr7fNXQkudeN/AU+9C7ZUV3Xx3HlesFYDw8pqERaCW+BqBQaIK5dzJmWnfyBAiqC7cFJA4mf",
-	"ri6Z7zVh56WuZhDwOnfkWCrio0bWnGX96C1Y2lcwrK5T3fCyt4NKIVlC5E0qC5zAihIUWRxMryJd1vmo",
-	"G9xtd0sTN1rbrpvXCT70LrJqmHwFfQxLn4sLSUM3vfndq93EC83/9t8v2W+YYpc4b2YyXohtJ4BOmGtn",
-	"QE+55+EujDSSeF4UL8c7R39Yh2R815ZAX5XC4E4pxhULBDfctyS6cJJco6Vwx5As6hTcMFqfaLWE1I40",
-	"SL/49MASNo+O0oWz/b7M21huq/VuySk9Gvm3m9N48+jNC5bpWq2qTTYNk04w4CwQSC/vjNaiXN+4pwMF",
-	"c+zs2vfcY2AHwMM8yrjKJQgXS0lTeALM1pkuhbMsp7yymtQO/AzKxBUQaGwYHcqFfCtYD3UQOHVk8IUl",
-	"isSBJS/vrk3GiBo98qPsomV+rlqBr7eT/3ylL13nFAuLlzx34ouCk1ZIA3KNZqaawj/K5+ymEZ3pFm7C",
-	"rNa/w9+GVxYv8mufSChYBWNCe7NWgrn0WTRwu+2hW4wx8cim4tGM0C4t8hsfles7m2hthEHybyfC1Lpu",
-	"wnhhdG2Jd5yfzgBXaAw5ZvwM6ZVzt9UH0WnKZ4LOY96aVZjujc8rGio3b4mxYed/EqUeTbjKC7fJi4cL",
-	"HmkSA0M5LC6PlV2KEkwaM+uiAUqdVxlcI6nGUkkr/Pk8Jq3er4sSjJfaiOtjNSjxlgh4kNYWZbOkmS3s",
-	"1W5H+7xsFZ/q7tXvojFeZO+6k+1lbGnWi9ykoUM22T3qRE1PCHQQ/CuR0htEs2ARCJKvFzhq+hq4RtIw",
-	"dzSUvcgasaBMddo/MT9fPdVldr1RqWVyWRKQMNXkMMRDinrQ+srkGTeyM+Jl7qIFSEAwUeivVOAPzU0n",
-	"8dvKNOMNbNdz5mo65eWcVMiZLIVZrm9L0IL4BVGkTIAY3fDvOT8F4+ei5SPQSixdwCUyX6SacWNHcXzg",
-	"+nTpm/itbtJUcIxaiNsHq6EuA3viNm0GLnR5Ohbs/LgD/jQkFOcVrXDXtKK9XnrOn0uzaQDf1gdoA9te",
-	"6yi1BQglruwoW2KNJiu1l/zgUTarj5DTIWC18Ov+9UemaytgD+JRrLPWpNttZqZ+qcSCMlojTOSSnytt",
-	"rMzMMePRR4x8C0dM2lYKNespTeYgXQIrL7W2KBaA93ov8l67B8gbOsBHvAebVIRVeW/QRpe+2nC/4qSw",
-	"X+KzQefZUqPL2r7dtUyfGEIsKZu5+6VrO/Zmge7wKdLbtmw6GLI6zUwlP992zCEaAfeyO8J9fzD46S+9",
-	"1qaivbKx1Lt3Gx+31sdJZth6PiS9rbnvUUD5KO65G1GhmDP/giF0Anxhy5mSvLXMmNM2daD6c8wGdJ/9",
-	"UbuJODc6W+17Ey1lGGo4xNE2LVnD6GAu3K5kgUB0nsPoQi0lqKfBYtC2JWFoLWKY9NnDOtIL/Wgzypse",
-	"ke0nPQ6B1vDrGChdP3K/Np/eSXZ8vBQOm8LM1w23qcf8ilo98Y1GPz2s24++PQldhck79rhp9H3DKXgD",
-	"nr6GV2W99sCTKfJR7fBbDMSvTU/4kHMXSPLHQgBmHD4YhXQ17RQLPbcFiRuz929ma79JY/k16VfX08xN",
-	"LYjbG+kWrWxbmsmcVr+mCeHDqd2xftuhojbP/QqVtYviPZZF1W0r87+wMSZ+IJSUBEUT82Slcsou64V4",
-	"zd84ckgxOP/P/8xy18TuMdsnHkPGnv7WibBrhLs9iX2MG8jE1xnO+x2hEC7j571yeFa7jLxwTjEkNBLP",
-	"qU2DKm1ArpdLfqUg5A7RlZi5hMfX73QdsAWPE9haRpR4BJ1cq1jXj3b81PCbrIVSGM8gfj8yELkeW2ON",
-	"EqC6r1I4eOtpZEu2ZP0kvMZeLep3/uQ4jocdJGx/DwKo8k6f4rFDI+t6s319G5dytZ+289isXMAI5m+D",
-	"Jawv0lrWgNZ2NfxI992clqc/tY/xepae1+LKdlh4yOomKM3AIReUUr0FE8+ZthMmFADL+FWsLeqQHGwo",
-	"ZQACL+FvFwHAS+FeDVJ94y7dzHi9+xx6izpq7Xj7YnXtvY+86AgNBf7jwjx4O8jDxFEeLM3RpqBckMaI",
-	"mGh6RKGh+B1DkB421ZhexBWb8GJc52daXngHsMucaMZ9pBBDOhaXo3D5zGisy5E5SCEO9a754wF5Y9Bl",
-	"Q06voaKecdiQEUaZEmHxcBjNFARMbA49pM3Qzc5J7iQ7ncNaU4lwy//YNY3hK9/6ht2PT8XlSWj+qS5P",
-	"D1Bt+Erwwk42vKu1wOdnpd/SAcnnaw6Z+n35ux0/hBN6uX36XFddhy6ipx3nTrnMXa6i9JzEO30Tt12J",
-	"j5krwYM9K0QrDPWzw7WiUL9rg8kOks/uveuMS62hZF+VAg7+1hQz0sDWZzvXeCMIjsjpxc53wCRdiGNA",
-	"BWxzkvWkpGb84kotoX4SNAvck/W5Qr2kp/hmG/PoGsbQzpsO4r0fR+cxdDGVGwqs9URDVGYdWREbzSgK",
-	"OT3TlcrjlNmEpYW+dDHFwD/SECXcYX+lt7vtkMszE9a3Qq6DkaIvt+qlLYFgwoJLYvBSrJ9f1wY951bQ",
-	"cVgPJm6biGk6IMg7fDoqJabBjcD0P3kh8u0uz1b3PI80w1VvBQ1yLcNHW4SN8J1Xx0r5Bzv17vqe1S12",
-	"bmQdlrnZXXs9ieUHr5AVvMRcQwMtdgkRi9doG0eC8QNujgmsuLGITngOJFNgBqt7gBeFjzP0v2+DBdM2",
-	"5dKoOld5m5yux8KKjPyaKoeIeGWDz9HldyUU892OtDIImTuzLM1KaWXGixFaIFIAlfbnYXdVVndri3wr",
-	"2eqEPkg229//4vDe3gHz73gwcO8ltO1kv6tRtq0LqjG5bYbj1yJh861HsQxxBIJf7ETMKcDFLy46+i4n",
-	"c1jx/hIAE+GyyLqBF+JZOSWT0UswTJofrOq2cAqF7nAlPnv0Ffv9AQuDo/OXsHv9ez/95d//6e7p1p19",
-	"v7SzrhOfsP3Be3Vo5PmUd4tr4WT8+z/hvfKHg65UMywrxXZGGCUA4sOauR/RW+urnKfw0pf4TncoxL//",
-	"k4uHU2CtcFFou+04MhvlhKt8eVxi73Iiswm16O4IBQyfAmLWouSQ79A2LtzHZBndWDzkKyEcXgST/0Yi",
-	"hkdzuBYypw0MWIsHG+Du0AvdaVKxnL6Ol/z6/BnEBHCmT5CP3CsbKA+uj7P52vhM7pVm70tIWNTcghG3",
-	"FcMHwz+XF0ItSY9pIQ8sNuis1FgZJPXuqTQhePR2pOU04A6HFh0KSAzx4jVw/92i/u1A/vAGjfi5GE10",
-	"1RXn/XXgsO6y5dpFh8C8tgW82SzJw4GfLEzAe1xpZABpMPaheIv6zPpetW08R9FbIz1bK+opvP3SPb8E",
-	"WCbyM8Vbc104px9FK2QyEIYkpjDL17L7mLTDJuvLuJz+bRFARmd+fSJGHV0LHOabXT7WLW0vW5Bs0j7f",
-	"k2I3rBnXWLmb1Hw9Bh7bX75blPIpjXTQf3C/30E9rzdGr0UlPRKWLypDRqmyUsTouWK6snt6vIeB5guQ",
-	"MENFMNq9NEQDpJQ3E+O9IMkl5ycC2vRqerzbAn2JYJzen8qCqA3lgpwnNnbj+PkaC/hn3vwGZjcSKG/A",
-	"CfvF518cXgutvRXJXt9ssIKWLzsHENwBajutD0EwQkk246N0wOtyJuLkKG+8DACreI93u1HRfiY+4ChC",
-	"NzPoovmBcnTSM79vreIZlNWXsjn7DTsbsE/Z2f5Pf7k6Zmkj3c/97n4KOe3pUDXfg38PfvrL1U//SoAt",
-	"Xxx+9tneQevKUMs7ifvDdbGT7IR213QT4Jye+9aiTy99i/jd7+tm3yU7L7FyRFcY8LcTzUrnr6m9Asfo",
-	"JAhn1Bevm1MCDGIGpn+XtjwD6xaXa7oG/g59A/sHn3c7B97XJfC3aWdfZV2PV6SO49zOS3IzaQ+r8JjI",
-	"eN+EYwCetS7cAjKP9QOv6Pmtwq/o1c1jrQhLdZuTcoJvdmmdS0LBukLsRy2DMb7aWoj25FpisZ/BNdH5",
-	"CwPf+Causj42w91JFEAJpRm2tYBLiryNcEnrAH2n5XrzIHxzqX1SfAMEEaSc6Zk8r3RlRvB+um2Wd+xf",
-	"WONkLwGBSBFMaYRjA8AcRF2qP4orW/IZVUuEz/R0oQmS0n/6Hn5S4hyjhfFvjXMDyaJuuTntoeo53Kc4",
-	"169zyUDhbxhgj9AYMFQR2OFuwtJKOSfUyPvzwPN/ijAh3j/kzl7NXDJelnMcMW4tevOGKlXajrxJEbYh",
-	"xXgGlhK1pQPpxdRNA1sXHpORA3OlFOefi94Z1TGunRbl2rcJthN9ZrlUIWU3HUtRFKLsTsidCq5GGwbv",
-	"ew9Jl3EDngFTUQiyiPI6OQWm59eDVrQgGhcDD2azUl/JaUMzwWc7vbu+cIm/TlFOG1xxYSw2dRNB/TLv",
-	"iOjvRpy8wHB9nwUaFrW9JxEVWDwRq2mqExs2o6l/Sz7N1Z7MV6WYcdqEUytmm8KUKcYL+X2lrT9TM14K",
-	"BTJrLlg1Y1ZjrBWWytFFNRUJlTWjD0Dmps/rhLFQCYH99GeIB84sVwBY3pXH5fodTYsNCxCtUjh9o1YX",
-	"ruENG8Cp3uyYqMktR9SOI6kXbWGy0eBbnXafGyqst5jd8vQRe3B4/3PmCvYx8lGYxR1c5gKkUgvog8EK",
-	"yQ6ZWAZoggRljZnQLkpq0f69BD/kqcaAc15IV9/QncauaoUO9H1N0RKn+hRe7mR3qs7dW1qEkM04YRV1",
-	"hCfjA04cX1XFMP2HPaeu7T0DOcVqBlvsEPFJRqDiDfcHg6WY55Xp7uer169fMXoA4Usa8bv3G1ith4NO",
-	"WCMrbRds5+lEl5YZShkKlMSdH2ilc6j0xWK83ZuTZ16HnvsIi7gxz/OrUh2hrPNWiJkoj9wzR+6EpP2d",
-	"tlq9Wi3AX/0co7yKFU66xsE5+mHNC/Law9lLX5uzvzQhQJTd77eO/BHjDEqLs1f0EpPKagLv01A7O71b",
-	"SCXM3WE1GNzLFP4j3KcMaLn7Kh0quJuPTr9B6T+lJ6T79ci9zqfCPc6obG8oO06C5Op19vNaubInHvtp",
-	"A272bSxtJ3XCr4uOdgviA6TJ8I4VitUe4nXU1eM4Oyu4ehvDgUUpzlYg9PluS6cqXeFRSrhvHoX3CYy7",
-	"8WC3zvVG0UyYTVNIwLbYoY2BpLeHxZxTOkj4BVjKU3Y5kQXpQVHpZhYqN2OF9lJkGnMQetiIYVwZCJa+",
-	"P7jn8IiiAsdtM3vduZM5seMN7ISwGN+69/3nl9hEnW5hltFynnvFwLDeRFs/L7PLCn6+52Qk68pZg/52",
-	"rpnVPqgJy8bwLQDeXEx2vZENS9pnh2H2HZBY8cqtu1Cho9Xx1mR+XnLmsPwMmJK6zhAkqqITkxfxoSHL",
-	"RcNofwznC9oiDVdjKKylguC+/gDIBJQjUAfXUMach86ooy+PWQqHbCKKPB0qf7/rJF+fmZu4FhJWqbG0",
-	"FIqkS2aqmSiNyF3gEx+qtbrt+2n4hJJQv0Zmk+YRj9aGEpzd5MHK70a+9jZij68aDbovT+J23XffhuZx",
-	"B1tnbjPiIdWoMivcNXRF8HrAfip92e10Kfj5yIhMq3yJm2zMSzoQ7ExMpAPhnpUS5BUModDjGrcDIyOa",
-	"cUSuDPkSwPuVRVBDps1i6oy07FxYssDhTHuVwrL5sOIJUIu6AglahKiiRKCUCSFV8d0lUifuTUfoiHZe",
-	"QqnY3p6nwXtIKKuycIxzvyEduuyFdXO7fN+J3+Lu619bZBbT1qJKKD4Pred8c95C5ywexKozXZYUXbW7",
-	"Sc2EZtba3uJvCzt6Euv1bWSA2iDkoc/eC7QzLNFmXhEcZFVsV0BvhZdjk3TWjHde7ajmHuKak8Omz/NG",
-	"fT2ETgifY+KZojRB34fc3G6z3xoh1tcH227oR3krVR4zVJpp7tQJMcomIJuuT5vDLj4KDUVfIud85JsE",
-	"lQGWDkzTxvPU9WI1Gpx4CSge/OZ4lhN8x7gVrn5iB8jUNTm7xOnCSNcfn/e8uH0J2yqV/eywE+R6QxQC",
-	"PJSjJUZuI75fTVNRYxCQtiEVrA7C/YHMSlm1WIGwQaKWj3s9fxaMyGF24fnzl6+9yAvnI05xDisazz9C",
-	"MljpNGvctCW0virsUyHyDwAHtmH1yJhWdgF+czOa6nJJhOBKrLBX3BgM0DQSazQ4aMwGahgGL/tUq9X7",
-	"7ObV7DQa4DV+yJOARrxhwouLjMlF5pCDZwEiIRNtyRge7cqmWKMsalSQFCNwb6AsaibXQZmnlXnsn14h",
-	"tn3dANZrhvFuhvMWxhZdwmuABVrDjNiM03ICaNDa/AUafBheps8nrol39RfbRJDcxOK/b3Z6lCsPngya",
-	"aCsa0Dn36yIo/eV71bkrVSG+kbqowR43oG6OqC4xJrjoaakudHEByqRUlAa4mRTp+VqbsrmzsqQIqydW",
-	"UCGIucpJCYOjHX6KKwx2a2alK/N0TQBRqAjVKAW6+gJh02ES4b0kWtTu7VIb1/IpKwVkvC7UcQOoV1tF",
-	"DK1TY8SX3Nm0rMgWyREzbazI2RKQ8w1ROU8qRZWWOk6qn8GSMCkLzAjeaSyAH52Kkxv+kShtZi7WrmkF",
-	"WL1TbsG8vpPUnx+dfoM0cluQr/U9yXVkxKbvbAALppeGOr4Hz9s8HvCkigIBOwyWFGMQanZ2H4nF2p6N",
-	"CqB5O0mMLPbrh780Is7XmpavfHBtmsFmqGENhK+wg+G+LM+4iOdQb1JSo8+uliQr5fXRDwnuu2gkwt/Y",
-	"TJQejWN9y8oKarPuje7auvUXcK2qcjeA03HL6HubBn6uTttfgLVbsnrb5tpswag/JNWOifCqt0Jc+vtQ",
-	"2JBF1LYsbkN2H+m8RtVcTn/vmPCjq4Ew5bkYKjQ5Y2QiVKf2j+yF93f77AlEetCFBzCD0PYd8PLQASJz",
-	"el12v6NK9JGzwvi3KUyy9Z2rhzPD2CpXDwdNOFIxwhmYyXLOuB2qNDpTrnxieM05eOANF1blUpb67LUf",
-	"IwZ/1liji+W3fcnpOlWzGau5wYGMYM1am4yWnO8r4X531rsViVVAfIWy5Twmvjh7DFVfmwx7vthxFu9v",
-	"FvofeOYKDllPaClZCTHpt8zVNo1+j+N1O3W5DSycC4qUM/GtGc9ei2g351nIl8KP7i8TPdcI4l1iwW1E",
-	"Zm5SYOp6ya0LgCaa3crl3ApT6COiD61i435sqt+7mHofJy9yxs850JHIVESFDi5v2gywMqnomkLynfHe",
-	"zWCFc35BBTAR5YNC/zEae+t0jW0QuZumhW5DgaNe71XzLtjMFsPjWQYmjFDYbjm9eb2YO/NekMdrkqol",
-	"aS2vMU7Bx7ozfArEn/TVy9PXKCthv+buDzJ/d7d+0qRJSADxCSG9+lh0FJ/GVObFdBFIb5kIX/W1FOMI",
-	"IYVc3McsbUXsh7CV+ZaJJV0uCLjYdwyTOcZrkIyHWTXgakO13jhD1Bp+tRtKVLnxTJPVJppmcNCteFVv",
-	"gi/esLt1IU1mG/yj2Pl+jfmUFsX5u3XJKMwMVtyHB2Er6xtWb6CIZEIxYCxt/LRYGN5hOIa0McRxlGrN",
-	"YnEb+32b0nUs8ayX6bNJDlH7+sVZRU0nd+uadOz+ZkgksWjxt6garLpfnfnTG2kD1LvZziCzqe2iDcB5",
-	"a8nip5meiUZkbKXMUR1TjEtzBKc82PyO6hou+VSqNd0L2NFJpYyPN6YvqIMTah+/QrObCSVd8LuH1BGM",
-	"t0ZL6+Sf//5PnswQzFzv5GDXoSmy5y8fs9/UmHZIQp6//D37TY06BzmyEGUHNU+PsJnTx7XX3oN/21DL",
-	"C8Ppe5iXasHJOlShmHaIyh9jBH1KwfkOwxqbN3f/+s//jRArfePQtp2IoaKnF0P2Ez8o+KeuSSunILgZ",
-	"F53fE99XAOpidRvizUd50psi3z1u1nk9ar+QDFW9CjxGygfS6EZw7Euj9mLImCNWr2UUXFxWCtOx25jf",
-	"wIIQpRxfigILRQHrurB+zThh6H8n2fEdImhd4/lWJc01D204bQ+p/fqLL6Gn07zx3XPskjBXm7/4styn",
-	"FL4WvCQ3CMywBc7qqrIYt2E5qPnqdeWylhCrhhHtAxgQFhb1Gvd+9HC8vB/UmnBTi/zCGYlv9Izmy36g",
-	"bPLROERPbYykeCMauriacQQkqFQmSsulsvM1R9Os07reaHwU7TqWY78fv4N3Vl7eQneXiZrVKdSbgJE0",
-	"0q47xC7vBtho5uElYJPLNDwqZtfaiibPr3poidi9i//UTBdeoVhqstZbsi/4uawL6FqhQaS75lFIAl/z",
-	"gCwv3+XxjTdHqM5FHQu7oLVQu0tWko5JNMVWHdz4sGyoRnQd2Ebu1ViUQmUiuNlgGFZnb0dG1yoTYNZS",
-	"/6N2BZ2VaW2uzRPfy04SvjuFTqLPz6ndjjFvA8cY+ww38gn5Tq+HZgxdrLPu710iYz0TZczAFgyVJ270",
-	"3t/nrz1Ui/R/1+5I61yA3o14x/RjtrEJ317gJzcEcrCMQXTYZ2sKdMcw/x6L3mNvEoqXbw13i+yrn435",
-	"3MAZwcWqbzvzxYPQX+wd1Yb1FigCAlLu9iOWF4HNHQwGHXO+IRZY6+IHg9tiiOuf9phLXbsCDa513alt",
-	"4JzwBHPVBM9B/XuDbPXtFmfV88E1PSDw9C0RliWFBVrrQL6OY1aIsWW6sh4KoN3Lhviia2OhNLl8dNO7",
-	"mACGiC8GOpdCMCuuaOwESIIgqRmFJIOtt+SZFWWoLWH5WcIKqZzfATY742Up+blgpbBVqVrojgfeKrUE",
-	"3vGPw+HVYLAH//0C/vMl/OcR/OcJfLn/dDi8+vzpd592ojy+hljcLUPxttAS1rfpL4XfNmC32kAWgMe7",
-	"pGuMQl4S/SmyUtg+O53oS8XQ8gOa3jGTlmVcOa8XJuqjm3dN6zj1mHhQVTeRawur4hZtJ3P4RbwBZgJw",
-	"pViCA6B5ZIFYknU09zEzuFbOsUZOT5fJxqtcWmZLLov++2xgzRsOVxlpuyKRulFt3UA617wU6iaNSJAf",
-	"DXf+WmRq6PdL//CWQf7XlIIuQlGdNXIqXAUeuJDaCrMEq8lqBhA6sONTqfKo1qw0zMKcABElghxgfkES",
-	"n6IC8hoVZiS9c7N46gAfs9YCvwpPN6rmrnUcqQFf6HOBqJSVyjwtbRGWshJ1cMWlVLm+ZBNR5FEJyf1k",
-	"MBj4FaFqIwUVyNRFLox1D2DYI6xxd8rMhc8l2iSkM05BujZQqbvwdL0JUQnccPLDwWsMMF4yf8au8Rc1",
-	"78h7pEu9V+rTFBZ7O1+y6iqJnOyYjkNDrqo6HDYXF5KE+Z5if/3nf2H7yzCEwg3btuCPKAgMYTmepu8h",
-	"XGHoPANvzRocEdcPJw0LEudcxX0v3f9X8YV3jhHorABmsTyqJxxRxh1dGuui0JcmzvDxjcDelCCztVwc",
-	"zTrqhV7X6dEc+Knrpfnts6jP5i+Rp2Php9MwmuYPzzW5RSKi9QHi3TeFPBBA8buJpsdxsQ7wzB2y8AbT",
-	"rqyPC08bh8RDj7ATU9OpJOh+fNgswd+XahRz68UHtktyWK4RhTN5x3iNaDnSshLASR3+z1jaBK56OKjb",
-	"huRtjr3d5DHd6HTG58eGZ30iarRnawd6t5I8VzKoOOSkEWHiLbcBWqpOF6lPYfMMNObaRY/wGMeXo6qw",
-	"51hHG+w94Hvjh3tPv/vhi3d78cfDTT7uH3Rj9b/pDBB6yDBECP3JoOt62MPp+d3nEPlTuX//MJtNv2vX",
-	"FLh3sErn/P/t/Q/f/bCf3Fsynm94KbnKRCgDsQkGH4KzUQFscspfuNbYuFIUxdgqQ8hOHx8xUONZOtOX",
-	"ogRIbtO72oWgysFPf5nyq94VlPabSrX7x2yfbIP4EZsxU14UjaAACmgcqoaD79h14epImDxlvc5ScLtx",
-	"9+xTlkGtCvKqt6SRwboOuf01H/Smx9W812N8DHaw6a5D/U1NEVrwO5jh7sq/qHmUeUIZM440ufzupcGi",
-	"Mb+dcQNXcdxEclzFSd3oXtGL7tNTfJ/GHtB+NuV3m7C5LQIDbjn2eR1uW2OKduRQjL0Hada1979+jCE9",
-	"g5/+0hvrSuUogbqInd277o8tWRA2eF1xAjS5nHEAV1uvGEFNI7Yc1ubATdcw0HAy13A3y6m03TsBLPbH",
-	"Xz/+kXGQXiFTbF6vwx3jU7/icoNrnE64iMsKc3s8TT+eLdbyxqKDa4CHBWnRwSHi0t0xPmSKZXoqjAve",
-	"X8tWF0kQjlpeH/ThD3FrsRbuVbyzYdHDxUxqHIqNA03j8/Xh8qtdMGOAJutUGKfALNyTPgK6FSp9JhB1",
-	"CrgpxeF3mPIjffmiRebXvXgLG95oaHE615gjFu70IsuUSloJwdS9Z4++oTSJTCsrVSXVecp6j+Db2FMX",
-	"jyjmlK4hOoXu/fVZZmjyWWimcWCiJlvz2sJrv81Biqe9voWmubfXaAbNLjbY2i2d/isL9XurTlyqfwO4",
-	"ldXJXV+7SNpWjQ+C3WaDJJjnQ9ZApeS2tfz2l8BhDlbIqFszyg8a9bcO2fdxQt3+G6q094irXOYeU3GD",
-	"EwRJ22JJUhMOX/gg4WyitVmGo0R2uZXNeKByXyVssRGoKklxvxSfPKLS/Z2NFrw8B6UKH6mhfyzU38GX",
-	"mVa+LhnUtYPzlwtXQSrzqxULei57EvSIWonYxv6qrejG0+V1x9iVeStnM9JmiE0jnO4xE1iMWduJKC+l",
-	"6S5OYKrpiJ+ZUdf6/Nt///HXJ09+9KsCEu1exouswvJSNcDBgpjbNbotV2GbOpOtu1E30Zju0nMSTmES",
-	"jrXbjeX3xg2wuX7PBTd2j2ywxh0n0werwdUfB/37Kfvrf/nf4dP8jwep+5nqfHjH1NkcMLXRWEDiRjtn",
-	"Ci2IzrrQe1hMhcw5E5bxop+wv+8P1aNJqafc6vOyz75kn39+yHoHg8HBLjvYv7/b9wYMPzbocP8uGAV+",
-	"+leKpQRI7wW7RmS0uAJDBR1zxrNSG0N3xYCzrdDnPfw0VKePd0OuMXzdmMZu4uAhYb70/h3DwFF7+vjY",
-	"4VnzoaqPlR57YlKXASdoi2AbcTeWxxgTgKCRLpQg7bcTEdzqm77vxFEsysyIDjfVe4ksM6aawtj4GQYy",
-	"CuYjL6mclYcNGaqlN4nxqUaHJBgkpXLZcEo3CNBUlwLSMjgkUhTjLqLVZ09wOUjh9DV7eVHUd9Ng/QG3",
-	"HKP6a0iohXyWdm31sbxCCDRTp500UzCURjOkO9z0l/t8gP/Ow/dz95m+N/gvLPWaQmK4cl9Tl+HzM3Vx",
-	"+n1p/6H13cLng46X/nPru4XPCy81vsAEke9ievCyrnC7UZK+P6v1OjN3UhN3yEN9XlkUXQn6pLcZyD65",
-	"Nmyhzqd6l+w0b0KX/6/tHmu+kDS6XkktG/V8b26JjrGMF7irQ7hWHfzl1u1WF6wVeCUwjSukjnUSKSVE",
-	"bghk2pFjq8EEuYTk9Tj6A0vG3Z30b4HEQW9Cxug51FgExKCcjWkUzcQqlkazPmLUNq0VMnt4+I5hp48J",
-	"tKjPfCnze0eMA2V2wfaXum4SyC2IS7k4LwWMGd4VIgfMI9iAB/fZr12NSDPjysAUKAgHqSbs1ucDl0vf",
-	"ENojWf2gE5S/ddDQM5xVpbTzU5QacW/OBC9F+bCykw7tF77WpfwTcqQj9iU+S3pIhsFDrhJQn2Gojzli",
-	"aZ0rCf6JOFkSq2020iXhCcyXTI+ZEcLV80J4K6kBLiq92vM3a49CflyKG4m9IOHikGohbmLtbOfdO3QG",
-	"jvXilKKaUYTlYRrFBiqFDKngZ7p0pvFItw8sKQH2DtBTjZ8XAOkSMqwTgpNj9DHnZXX9f5BoCpnNCUXK",
-	"CPRNOKk+ISEHm0rYrNDWJA6IIgaIMHi2XLUKk7DfP/TgzdAkV41orqEaqk8+IYZIm+RxG7gl6aL/ySfs",
-	"YRgfiBtw8ysbAaQQ73dla8BfC9teSu4z1kF7cPTFsLzkl4rux6w6K6SZiJydVzLnGJ+HbdXrTosDc7NO",
-	"+6VUfKgoCHeDK+K7jhGfvnyF93SoZqXIBBbpPQ42KyAmfi1QnIJUUMJ6mYnSaOXRupxRi/DGhoo21MF6",
-	"uVWuZctSzARHyDEJh4il3iCR4ur+6lfskVYXQuF3Q7VHNbqIEBNkBayPUfytGGXY62vpv4VCfPfu3XvA",
-	"einpB0csGBRSIGEMenzz+hF40XVlZ5Xts1qBxkNsqGasnVCCbikY2LsZCRGmDyOicqb041gqaQV79uTJ",
-	"k73P7x8yUkdMn4btYiep0OzX/GsER1D4zvwYhuOCvwgbNqqXJY0Ftzd5mPDHhkvJn6kEKDtrqlOw2nVs",
-	"Wam13UWgZtCPUi8ec2Zg1koUOCNn62FE9IwDLfE1XGj1DdQv7mCtR1TcHytKMebtCqEpWKSs0KBKcuCy",
-	"RZEwQ9nElgRdWL+M22wCu6jm1Bu0ZTEytYTxGqFyQwuBByfXGdGesGZEsM7EMcsKCXwWAjQrashYWRRM",
-	"nitdCj8ZOxFzlmt8F2aZMEScZyBGl8zB1RjG89y9QVuPJ1CPI/JnEk+4TOIulkm86oJkiZLmYSXwBNbn",
-	"7YjtA5v97JA9PH307BkrhLWiNAnL5bm09HbaB3o/gv8cwX/20oSmxKmuIaoO3L0K5wvfZT2SMlhaH+90",
-	"t8/eKIkAGtCyi9iG1qKgbV4GzBp/IYGfQSOuFhPOCdnKUBEpTO9e7Kes1KCokAiyAQ986OCR4ZJIgVx/",
-	"qHwGN/VzBAP5kT6wH1Fi+ZGdlxx2+ceh+nFvby/8Hx6M2Sn7Md4r9iNiHBPLgonQdrstSlwtMvgR7lRC",
-	"DzcqUdUKFti276Il23Uac232I3v+7MUpRqqc+xLXP1L7xM0DT4p4UdKqVZ14jx7K6EK4pH2isFLBSmTC",
-	"dd+UEdiPwMmM5eNxZ7fE3WrWZo4D1nuIJTpmDoIgts+UItNl3lgT40ZAQgn7keEf0lhkSjBtFFaRpEL3",
-	"lWdANArcfmxjqJ40ZBlWSOPQKekgEAWA5ondklqJ5QXhug5Vh+hzxLg7YaDzwpX55BMgM1qJTz5xGu8U",
-	"7QL5lIxsfiYINAlDEDlkXRUyk5ZsBCUSUZBPMF/GBJIGT3umXwgrELZyqF7OhHr46hnzkqTH2EcShnAI",
-	"dIXqmQPFroXMI/aH7wBXyrdzrz8gR6hxl4IWCk0YcDtewksHuLrwyrPHwFSVyKyzfBog1g99eFjCprwA",
-	"hkll2Yjm4ym40G+F2yAY0eFg/5hYlvTfOk4DQp1bKRoQPn2vz9K7E8ELO/kT0K67WCyP/pwKW8rMOPid",
-	"u3omFJ/J/pxPi3SoUPZQ2nXSS/3C4ULsesL0BG0hngpRoW/YSMUWSvL2UtwqOrB33befArR56muCDVXq",
-	"ipMCpewonJtiDyZ1ckhXHd0jYBKuriiUEaVvQXyCEX32YLC/suYohCsBPU4Dnqu5e3C3iWDEeulwZ7iT",
-	"wkzhzcuJLuj93WPq/dHpNywTRQHdrl3FFEr3p656AYSC5Ww2mRuZ8YJyd3ooajI2ETwXuMz49f6uD7Jy",
-	"HX1+14t6qRtOHYIK47muPKpv7vtKlPMjVCxhbDNuJ0cyJ+aX0iCOnuViOtNWqGy+9zsxR9QQsqU7OWkq",
-	"Dci3yim58dJjQyRwS+Pt2yXxVVd8KL3rjtoLfz2YmSvLrxJXphm0J8fjidtGgX/ARw8Hg2M6PES4oLoi",
-	"SEB7rrWzylezZZzK23o0YFFeyAwiH1VAio0MaF7oGSq4cyB/hGtLTyTQnkDcOVmvEXsr5igLHh4cAN+9",
-	"PxiQ+gJ0Y6iGFP8LLjQ86MOdkO+e1vWY02NnmAcB8RwGYnUYsyjBJNsfqq81UnvozAnUFD8VKj9L05Ay",
-	"gkpFwqOXBZrFnUEijpdPK4FibIgFQcEPqfZbjA1FpbeQmXDQcpQdBCWIZ6UUlpfzqEJzrORSnKRxcKoQ",
-	"4uagpoFG7Rzt3OsP+vco4nGC9gBP5eDvc9EVmojFWA07gGyGUJhzVupMGINEq5AXos++RvHJU75+wKgH",
-	"J3a+c7TzW2G/cl21vH0HAwyuc7Ud4M+Y4v2jg7+jg3qdaYq6IItAax44TFiN+4PBsmbCuAgNUPECKXXD",
-	"mLJz9Ifv0IkyhW042nkuLwTWw0x2LOI6/qGeuaFSqZ5nLF3kV6WG8y8qQymK4mrmi4yRPthe32N6BEuf",
-	"IvME8Ra4j73U5VvcIo8vbpgtK2PpTC3syQs3smv3BMZ1d1Zw2dqNdoTOwsK7Hm5j6aNlm4Z5LN2EmFMv",
-	"3Qnwh3phJehqEZUAb95ZJUGqRYvgGsfeNbfZsfeD3GCh46GDnOWHn7D//PDF89tY/9exRrtq6Ul8WpPG",
-	"OJ9LKBjN3a/eBuRYFvDLqixxgvcH94aqdvK2d4WlU50LFDyuLU4NAmFdnZr5+LAjV7aVl+4o5N4Tgdpa",
-	"GCSOpNesWM0qZWVRB5JAywZI6FSjKYSYecQ+h0ppKzOBzkhpjSjGWC8Yj4dJI+2iUYI6YXIMhgiCVEDU",
-	"MllCadkld/+EduUWyXFUoHrxvGL3zGpaz63PJ7x17/q3Tmlp3yh+wSX521cd7XrkK451gORderI/+QQt",
-	"5UeffNI2ji/ovbr06hsKFoQByBT5LcayBHkJa4FRDGmjGAEakZw470Qfxc7mQ5XKPP6xz57KAq0lmZ6e",
-	"SeUcuA+/fnzMUiBoeEekclFFpOJYnTpMP/guYWfaTphWzRH02e/E3AgsdSiVM57MuKtv4GtRDhVUQgRL",
-	"f1TWMMWyif7v2qOMIM403OPWC3BNMd5Cq7qWMzQN0iE9BBPRM/49JOlo1TZU5oLSLHSJXmQKV5ny3C0I",
-	"khLfeUI64aDrFkG43SNfBiboCwYTuIFT7qA24DPJj5r5mOvdoThO6l3S3Wyd2XlzbQbs1ZtrMuTyrNdk",
-	"IzFrWZtRFZm1Go2K07Qv6xNeFlIYy1qFPsJ9wAyojjHAzWkMYJ2wwMX+AfF0sXdxdU3vVt9A3684OCTl",
-	"n5b2ggpto6OQy3l/ELkqDxqeys7y4V0yV/N+63GDbNDVXjKwUBt17UNlUKz57hb5Hp5cDMXt4HtQTwUm",
-	"BLMkHoC873Ad3vclz314K76yf/0rbxR3Jm2R00trcMunujyTeS4wlvDw4MH1b7zW+gVXczc68zNx88C/",
-	"H1GaiTTgXYx4uOPX30FQTcvguoPAbOug/TaZP+Lx34IEQNXt0AYxluDvIy4V3LJaZSKp+aWD7ceidxTX",
-	"RN+MnEHAVSySxnnSSuFbWiIe4hIusrWujakfoaPvKjbc7v1apgNRwfhf+JUaHF7/xtfaPsU0lb/RO/jQ",
-	"F1SBIyqtoeAGFyOBPiwPM3Hbt/MuOozWuqOr76Q394ErSeRU391F7dT+La+olpVKPBwICvDOqRJ5r9CA",
-	"NpsJRTrpqpv4EKfwi7yOOLTneqlVApfJfLySv4ArGR09dN9ljsj7G+gu07IbuMGVc3KrC/+cafNeF49y",
-	"5AzjoBHTqBNWChd2HZhgK5syRBvrUp5jjo0PMLETzyprlPVCKvIaMomm+dQ3M9Jj8AnBO6GhwEd9hhx6",
-	"Uyx4JaTygkefnbjWW8MIEPnwRvgE2ivC8fiAIRcd2ROO7GBbQ4Vx8JidppUIhiELdX+cDwxzhlCPcGZk",
-	"tBzsOgIUlsc5jdIZmQdGbvGPnWnL+fT1OCrp6FTNocL6i9z7+H2MmLRJcL742d4x7ikyn8EWIJoSN0Nl",
-	"qpkojch9ocQwNPBnmHYzjYAGt8ZHYLFzueyN3yl4BnvTLnCmHodTsXyZJztUZKTjaLTAaFolAuQMe+nR",
-	"nZzJMS5OmU24VCzjiqDmMFuC9Q4HD5KhQt9Y6lJUzci97bxzJ4i80Ts8OEjIJwsutWwSRLjabxs4KLR3",
-	"HILshoqGD3UeXuwPIK/h4GA3cSaRKLYO4uVcYi3woV309qboeBu5U5Ue0RjoxGEgFzFp/DYcMTSrKOFT",
-	"MUJhKGzQnWMzMmiXhxOlxCUEMlhWCG4okci94wLG3D3gBXw9p3YgKcX/MhqXHGNMqJmpNpYdQAxtu/6o",
-	"Hwq4R0OzcAsKuEDNSfghZLpSME2ak29q141COpBVMwKvXDyNRlRn9GBKy4dj6LldYkZeJX6LdvFc11Uk",
-	"qCewqI0wJngkVG5GSojclbRJj9xkYLgNMgALAC8y59925TL85ZvI8wl8pv1UvCwh6AJ+wY5gLvg2dHiM",
-	"1jFoxAVB0VjcCBIMukP8V5f/66M/LidzqndxLpQoOUZkpe6t2taGi7zbJdoQUX/iGcV7CjfIYb/U+fzG",
-	"5JowsiCNNIP/Xe3Ully1/2HUnBgxgMIKsP/nOluSZvqK20mg5e7lhKUtvo3oMs0pJqu8UP/BZLrBGjLd",
-	"I63GhUNXOtxfY0yv+LzQPH+t9XNItaT37q+zAKaaUdXBFyKX/PWc8DUPDw7Wedk56UEMfKIsODn+RqXW",
-	"J+1oPqRyKP1hhUASCqPK+V6a/T67CUl2Vmjbn6nztfTHLWw8fCowthH9INiZuThP3cxeff1bJqdg/1yh",
-	"G74qtH319W9vUzvEMdx1q9BhbT6TipOlbR0/Nc7yoz74s98sODiRIpgwOkW3bo/xp/wWrtRpHeccxMCQ",
-	"nTXl5VtICvO5NgF2MPGZxWOJ2SSQoKpy0mV4XQ1sxpUo2Jko9CXpK3gtQtgXp/AdDMwaKsWnKGRS+yFJ",
-	"KEpAgtadA+u66336zQe43ubi/NOrrQJPPl7oX+iFPv3mw1zoOhdgPXNP41K37/CzhWw3mFM1Y1YDqtmg",
-	"Tk2J0uzchFHVowAYXmuHFGNNt7m+5cxXGmXcsrT+Pq21N9SuvK6322cLAaJ99qqeO2UNtRPnuJr77DIM",
-	"NpggZx9TrVduXUw+NAi+blgMRxSOG8BoQwUPCIOKG5EmV+AbomF9oCrlZWEpRF1ZI3NXIdtlLop8qEgD",
-	"1CURMsbJEN9nscGesrDGkJFTpyO6fjAYd6gOBw+Wa3XRovzi9Lp6bBspdoNbGQB1scxR7Mxrs5Drk1BU",
-	"mkt7K3NR9nc+6mAfdbBbd6jHuRyYSehTjyP2EnOBNXnMCp7i+M4NeA9eaASWduQNk5LbNm9mNUtdJplj",
-	"SB6YOqXy+uT1IxtaLjJnP3HlwkkhhZZEZzkN9hCbRvO9H4fDXCZSj8GphNhKRjhem9LARByIslZit88e",
-	"NhgK4cgXWp2LcnFmGL724AjlWPgGvhgjAOhQnWAdGxN7LzF/XelLYp6mi8RTaeKbCBC4eeJOY/uZCPtS",
-	"ix2NCpBKPhLrj8T61t287YzYW/X0LoBB3rBGT0EXcS91BEaHAoDB0TZdFq77TQtX8hcYT7EA6LlE6W4s",
-	"/Eft++e/d990J9x3RlqssE2vqYYn66jZDXye5feMPYuwBqDZoVqCHuDg5M64zSaURwk1buKOdo9DCv9Q",
-	"TbmPl0IfqwdPhVs6AaGp1xqUc41jsk3Dvwu4BlFxY3iJ9aaCo2kgDZsESCF6qHJJZXR3HWLEdMZLgZIN",
-	"Zcg2U5OPQp7PUCFqOsJDe5x0bOLXj6/HU4cQTUSfNKiMDxUCf//1v/6vLYdxjQPUjxd5FGpNAuB0mpCA",
-	"OFTeFPHTnw8G7Nc+KIG9OWVPXj1kp9/ufXH4GXuBrbMvBoPB4ximqLmPx4uxATQshMssZY5rlPgQtqFq",
-	"oPLg1z6WwIe0PayzX3FpPaw7pWZ4MRUkW4Nb+7AzWKMZpuHB0ZugEiFqY6i4hcNL0Q9A7Fk7eqPRuC6d",
-	"iyiS/zFb8pKVlTpuBX04VCDjIAgXQkVcJUH2UIW0GK2C9ykKXGmQZ+95pSFISy8IM1Q9RHRBLzmme1Nc",
-	"Bc3Yak1BO43GkqGCh0i/KDUhPvngABy8i0pCcxTMyZZcGYqjcPcLU5hpxw4HD5izVfvqPWRc8rnrpDrE",
-	"VXogxw3/GCltR/63dDcJSlYd2ANXnSu2uFR1I3FoTN1Eywzlnp1wMxpLiKGBdPAjhOeMN9thO8XHKAqE",
-	"gj4bdw53dRRdGAR54BSjs8S29U0ThvyXpf90QWF/4LiFLnD7NUSYEDirKwsU5qOu9FFXun2Z7YSEE96N",
-	"llSDJa0pugUx6Hr/SQTvdPeH+sM7r1w5knhLYQeR+QhvOkW+AtlsOSg9jge3xGq9a2SolL7cPQp4vSIU",
-	"cAsc05KTAQkyvkvdlSGOcqh6Stt1mAUJcvCw5zbkxKUEWZfFSdH0aMJLqLARtx4PPPJi4KwuOTFaWCCP",
-	"Wm68q4cZEcfF0sRGUo0QuArBvxSa+kyVTdoczwwVMWNd5KJkWok++7YFJUztQ6AjcTUofT/RVelwhSLJ",
-	"SRrXDqId0wLSTiRUZY7gCHFgfXY4OPTIjhiwWgqEFYEH0XNwqcvcrPI1P1NPNdU02Yyt1frDzvVZqsvj",
-	"yzZJMV3kJlNNgAceT/EY7ZjkGDszQtllSYTcbp5DeesJTn4rVuU51Vv/Uf3/2VnJ4q7AVeXuWN6o7n8d",
-	"C7lZf/xDw9JXL09fsxVu/zQhxSg2xtXrMKZM+wXmkjqikC6wF7i6iBM8VOlvn1DXa3LMdNfh2uHqA5xh",
-	"AGZDf0z21g8vN50e/a91e/zoQzkcqpBpQr6Z5TpCTQ/fxxMeU9Vb0he6BvrRLf5Re/ioPaxD8n9fcZBJ",
-	"5ito3436xx3+6Fo6QUvgLwheIs6NIzHVQ++dzTH1aJnj5IXr+hYJAHWxyuXh5v8RMeHmfYZFEaFAN89K",
-	"HOPhnll6fjfxTsQiBhpo4fyxzOV6hpO632evtLGEbkS5afA3Pkww0hBgV9duJAuvtGbhzPumSXO8in7p",
-	"HQz2IfFLIAhMWU8dUzSTyMTqC8rU0SChEap7NVRRWmo9dHHFM+vSCFvjumOYuz9ER4bKD1Q54YRjfAnF",
-	"aoAx9GAwQMNwKQyZzUOtD6gKEHkYqKBFhBBR19o0MfRYMOKbib7EKUBhFUaGbjIA1Cj2lZLfV7T2UoGA",
-	"S0otxKmsMJu+8IhCtyHGUOM/k+DiZtZBs0hnzXjhjSutnT8OO4zYHmQsRep2kwbZ5eOja+f2T5fvl1Xm",
-	"GUkacaq7P8Cx+Y+WVvZRFPsFRiji5QnUKKndfrHIQ+WyNmVmTenLnekbEMISX35dB+ieGHggXY7aSpS0",
-	"C3IOvHa1ZQv/uR2L20NmZiIDm3lEziIat4bdLcrZq0dUY4ntH35++MW9zw4/vwZS7LufhbbX8uhH49vP",
-	"f/1fKr8b299vp3tt7nHpDllDdu7oTo2UUQuS5KMPUApRhe0EwTEIN4dJRT58LG6Itg0sLPA9mLma8EKv",
-	"tEO8IAdCAz+vE3UTS8cAPjne0qM6vgaRQUAebr6DeN+X4F8wwrIe+mwdBj304QpVOh3Y6JJBs74GWwqu",
-	"+6kuRepdFAJxNuErhxHELkUpPBgEy/TUVbYYqqcY9QKCUnNERghfUw6bCGK2Vpk48s1iCRuqqEqoEEhz",
-	"S3KrCFnGARLG9Ys2RE7zgq0oh8oF93Dl+vJOpzBQJH1lP1QEocekQZRgK5TvOuqOGkFYenBSHWH0FYr8",
-	"AB+CwSs+2wmjrPokJIKTz33f5znEaKT0g4vCIItxCLHo+/CqZLmn0z0Z/5ruIkRqp0cuvBB+igeBoSw2",
-	"RpupYWBg6HDKfeH28HDsCNSKqn102iJOsKEnuLmLbHAbeMljx6nqocAN8I+OhciX8TC8Q5vjT94oBOf+",
-	"YLC8XOCH5pi0OU9Fd9RHDH/5twEM9rcoCxNrgWML69yMo2sEgdM32xkjy2pt71JU12ohX1uXziID5K4X",
-	"VV2sobkcpaMggDHGCClRV2AECkU2ihYS2J0AEh+J3J6f1jT4iHF2MNgH7z9XJqr61CDuGOtYKZe3o6Ji",
-	"elRtB6qiuJBNGlldz8UZhHRJgZCsFyqqJwhQFLaWCShWmDCrNdQsHSp8yOySdwoArchHlfj6aS6YMs4o",
-	"auZqHrGSXw5Vzi2vQcvspNSXCoIg5hD6G1ULYr3Dq6td6iWYnyK4qjMx1w5iiO47WX2OokVn08r4WoAE",
-	"82gsrWm9TzWm2LE3I8GShCR5D31W8DNRIEQiLw3y9KHqLQA5GXauqSRRFAhMh8VeuhqzxhfNozL3fKga",
-	"McDH/pLIvGHjiup7uupNv2JR+Z6hOhUg2ixU9LGaTcHwVgpbSgG7MRYEko6t4xXzETdDReWiUBIwJFiI",
-	"KQ4fkKeoCJDHnjo4ZBgo4vHSkODcQYudOhflrJQkcXB2+tXDvYP7nx3FRYQIkzIsPuPA/UpD+HVDJVSm",
-	"Q1oF62ENbGmxVG1GQaFTAcfeyU5uRafcWlHuHlNHQwV1nOKOkI/V5ZRMAKkq+SVVmzqbW0GFCk/5VEC9",
-	"n8QDwIdJJSTl+imHUmU5nb1PPvFAcUPFwoX65BOq2GOrUtXzOhjst4DmcRQopHpTl6u7iY81tvdEzAo+",
-	"x27LSqRgwWNGZHArYEVrN3JzOt48beM5HWFJo/jBqCpFc7qBAIBfqYCazzRv1zWGM8GAKYTYXypbnxFm",
-	"5VRgPK2vEFDiTCjiW5cMEf0OBw8QvYzm3axjIUFTqYG9xlJJM4HxQMs4i4d1Z3CWHXECkgId3AfKEl4H",
-	"uzVqPm/FPFwtODq9FIvNZOYi3YUaVmreqIQIlW9KC0/22bc4ykckteyB5euIhZdr1MKhctW/XA1Nil/3",
-	"us7C8UyJjoGIXXeM9YwbRRd6nmESpUl9xZ2U9agUNy92jx0UQdoWp1IXXh51i2TzTHhBtHc4GOwGwxEe",
-	"UGnYm9dP976AglIFkT68Ont0HQHdBJ6hgqH5LgVCHe5/MRiqnps65GOcwZx1AM5MhzvpMXv+FLbo0cnz",
-	"p1QgTagc8A6eS4XpDNq4AzlUoegm9JX+KvWgB7Q9sBTwhXkrZzORH7ua2wW2E/3Qp3nRIaeCC9iv0x9p",
-	"w/rsEdZ6M8E7SciWak4UyBXYpIJwWC+SdoT9WOs1ECD/YxCB9OVC5c1QffOtVFgAcy6g9mPqW0jxA76f",
-	"+oqRPmrFP+y+iIqkLvkSX0eGVL+MH5uvkk5NT7fK6Pm3fHZK4+eE/fW//m9s0GohVLYLL2PgYFQJ2x2m",
-	"5T8MVVgEKKaG/de91MyzNVOfh7Pwgv/BVT9PqMSqYAPWo0dIFNvfpfqae+xlBB05EyXsJMCr+sLzrv7r",
-	"DLVPhmCHDQqP2IRh2/C+ul2IJU7yh+FF9BRScNtspLkdu96CC7+3e4jWq0d/m6h8H3bT6iFasd0+O9GX",
-	"jtO60nDAr4P0Ay3hr0h6MfiM7kHcrzT1pSCDrJrjLUARgR5sFIeujIDavdBTLjI55QVh0mK1Pk/XkAgr",
-	"pFLpfv++2LuX7lLiFQO6VhmucuNRIzUWcPmafw0E9ZkahxBXVsi3Ii7cS5hnVG44rAiilWDemVQoxDhO",
-	"g5Uim2VdgMjOCcDXwCTvGAZ3OlBWPFn0uooLhuaVW9LcLyGRGu4rjdZrSL+7+tWwjk4Or9k7KQYg+4SK",
-	"zVxFNM05JoDYEW4nZu3jQ4eDB5+RLBTVGXQIsTNXeXPtwph0PLqfT3fDmcE1JiR2WGOUEmkde5C5hnA7",
-	"QcymOvqOsBLZAvsQC1FY8AqUZ8TfTMJCE16D85BawOiRp5H72kG7QlNQQQTeQI0FLzKhuJKY5OpVgsLi",
-	"7FfCaY+hRSyIR7CAWu0RNSHP4nEAS+VzlITONEVYo8pEzpeoDtcdg41SsaAyigGAJhxYL1pvXW1Kfxb8",
-	"kvf7/dTvG9kEr3AVjoYqTdOh+pWTZajjiOrOJtpqlAr29lnPsdZFFro7VHC8E681kULZ5Aee9CeBJiSe",
-	"wgyV38pESXheJM/3k0H/fjLoD/YHB0my8onBgy+6nzhI9vsDeOJgcL/7iXvJAT1xuL+PT9Dp8b8n+PL9",
-	"QfLt3mBweLDkgf179+iBe8mBW9AlgQcn1eZpWpHE/zsx31k018HJwJMWxEBkGS5dz2nCGE+1xJz3ngWW",
-	"NhlNdLRqDr1sXDdQo2rdsYWsCDSr8Dp1pA7hXzbKSBK/gfJH9RCD5A6j08B8Wjkxywbkpf+1F+2lf+Hd",
-	"rUGhVFEkb7LjFaNmA4sLgZwfvjwTOZFImPNUqudCndtJbFCOQQE/XH7hSXVdWmFZ1dmEPiupDOV0eiBv",
-	"OlpdOm1+qBZsOAl5o9xLjjUECH+3Yc5FEcXKdNkKFhc6ReOBL3cpjdd7XG9+7dB1qFgdlYadtowXoECv",
-	"E15zpnUhuMLDsF5Ej0uRdiE9ZaX+Q4JEf4zm+QUCWWpjGQ8XeSxtdJljD0a1KpY6zsbscF5sULpruQPD",
-	"0xvveObeAHiEI/ZCvyup0SpXQGbX4J+h7xr+6VJkQmJCY5OgLSvquoWsc1Kp24a0gWEtp9Uf42d+CdW6",
-	"nD+ADu+NXrGbDqyhR5qFabx9pXl7XNwFWIpCBZqhCgitroaeF0O9FcsEL9tiWkdUYM+BV+TpsYsi8T7B",
-	"uDIQxE93RU/40kTU6rkEGQU1SjcIH7rYKK/TrN0QMoXBku5SgaPqOlE0RbCvn8RRRkP1WJRAW9q4Op7S",
-	"/P5REnsiqqKRMG6GCixEQLIS1kqMw/I1LqQplDIZqv1+1MtlY4hLM7+PWOonBVWYDuImMl0VOWs4WVuP",
-	"32v3GIBMpHJBMq03DuM3nAcDFmMKlNvqcu4drBzdLsHyhGnnrbbu9+OAyO64mwCJ1EiXd4YKdxoINSjy",
-	"PdC44t6SNgYOvt7oshdgkxcxbUpBThlRENQS2jXRyLWAnOOlwmUnW7olgeewAXp5IkoBLHEJQo6v59QG",
-	"ysEWsG2IgGqckEyXpcgsGjK9jQG7bmpsd9AvxvJSju2ui+rybnPYSb/k0nbWjHKLhm3QelHEFrx6PFSf",
-	"xcelgSpwxFI4FLgovIDj8Hn8bARWwHpBG4GbkpCnLeAV0GChahNj/lYBBW/EGoZgQrzaTEZhagCQ5VNo",
-	"HXVNA0V4SbWuUW02Q0UetYeYP3LEYoY/nsjyU++6qkGZ0JeG1ranXz07YSeHQF6LQlBwW/plpXLwm8AY",
-	"Xp4ZUV6Q3dywHiFVh9pWbx69ecGwLDcBXVemJkuN4MgjVi8B++v/9C8EZpqwaLHha4x/BMOm4qWriY+n",
-	"G97IuALzsfOAEcgQDueYpbkARpnSDaxPEf6C1PIpFkoPG7nbZ81Fazgg50PlV8g749Co6Dbc+SVLfekl",
-	"xNqszYfKzIALmokQll0irYPPtNywZVXB0X9RYsQgtvmbhH2asL2E/V3CLD8bKvTqBfQM7pjULpuVYiyv",
-	"3BLAYeEzbWypZxPhUL0C/rnjURzYn6aFIj9zI+8Il4T2m8pCkS3ZMymYNSQXQe269pJd7cUnbVJ8vndx",
-	"8KkoP6cl9GdsqL56/jm7OOjf7++z9OXJmz+eDPZTNhXGcHARSMWenHzOMIgBmZJWIsoRZr0Xp18lQ/Xy",
-	"yxP66eWX/4A/01SPaGIJHcRKgVecfnHA7AnT9QEeKiunIgnJBiAZzaYY7Ypte0ohyLfpcOmNOIdnmFDE",
-	"8RAMmJelhIA4ilLAeIIXz5+/YuOSQLk0CBNfvX79ChLTVYidsZNS1JjwXLFKZaK0XCo7Z2dVfi4smwsX",
-	"JRABXNWg94Qcgpvj/CpLNIqTEDj2ARSLQGdW2akeemrjDxwsynwmWE17+rXhT58Bz0eB9z2tabQOy61p",
-	"C5bGnWVHe4siG47kftSWfn5t6bSJTEgB/pW60dBKUp2c+PH+cZbUTiRuBgrlre/QPggjvIXu6aVEU/ty",
-	"IDQEI9ylYd9TDrx0IqzKRFttapTMdOCFPjaidgD0amUO/LJjF5YU5fEG0a+OKncORWc2rQtl1skWtbBy",
-	"p51lAfx9SSwoWx0KCivalMilWdAjL3m93D6+nBQq4B0+Oj6Ed3lLD+KIomYljAsVWIbF6vzdQxX12jNC",
-	"RPJeWweHuAJ/FtyG1xkjsA3SGlGMUSOA1GG0CfiZRmpepa6NCnVMz2FLUgVwUeQuWBT6wkooASPURVK4",
-	"o3Ec4hOYzBshoHFQJjqHoa0EBC1QgRwYmdd1pA35JBNu4kadmuKnRlrAUNWzW+5OdAv4Xgzx5v09blQ/",
-	"E+pjgz928q+gftJRkWWjLrCLmvwI2/LRu3D7xs48D6fR6sjP8L3Hc7ETMd2Em68wg7qO7v4QQjDe3bAh",
-	"dFzHoBG5TBjPSm0MzIvum0etIK6JZlJf0Tyykx6za5hH6MoxUqd/oClI5jUCNI2LULM8AyA84To2bYm+",
-	"QVRsqcqxSFYA4Ksx9QXG5n4NrvtminQY0c3kSd+mG6W5Nh/VhF985dr2LeWt03pjCoMXCvem3IpS8uIG",
-	"nS2u1kZtsXZdYFB2pvOlkFG+FueLMKbbvButzlbCSPkBfcw9vBUgqYWjsgmC1JKDvjGgVCZKp5aWwiND",
-	"+fHAUTdWZ2+Z0S4Q3RnSUM11r2ZobU7RLpi6ZAlxNeMqF/koMre5CmEp1pAAKF8Kak9dqG8aCjukrPfT",
-	"nxlPas2qFJnl6rwqeJkMVcV+w/jdv/7zf7sHNb7aI9Rlw45H8bezUsx46Xx4kGBHuRRhooTaJC165PzD",
-	"ozHasH12npu1+9nlGRgrZuBxKSQki7goDLCtX0CUMZlbp88Dj5XlUIV5mt1jFmn5CZpTsQlvPIZs/tq+",
-	"P+MODZp+/o37gv30F/Zv/wtzQ7iL3e8G72QpCm7lRV0jZKiiPQFl/QwjZusO7rikAFRLaRpQHuBuD1b8",
-	"p798sztUvb9/9NsXELLMfvo/7vf3+58dsydVyYHG3H307PXDR+z3bx6+gHJuffakvw9B+g4JDF1ohBPg",
-	"8tqPsNhojqomRnKj8to7HDxYgZLVJmO3hJfV7uZnUhoXZrtUpnFMyJ/r7QCqAuNKu3nm3R9gvz7Gt33U",
-	"QD9Y2YEFVrk9fM3S8/y+omCnmrZIp65Ho4LR/A1oWWsSpZoWfdS0fgnwT+9zlVZrV5ifv6YPJq5jbkwl",
-	"DOOs5CoHUQeaYb2Qy79/8AU7k9bs1pYKCARTBA9AKf5DZURWChu8tegp8NHhqpgfh5QlUXrcBvgeZSSH",
-	"ATBUE24mFASAsWmFPjdM2uViyGsY6i3JHtj2zyRwYN/XZA/gNiW1M8ltAAQvKJThfukX/iMDv32Cg3eb",
-	"cTosEaFxpGJNlk1Phzj0XBTCirXpy4m40G+dhoMtHbtkxDp1dLC/W6tZDvLYoeS7GnZRHqx3lJXYbk5t",
-	"OituF6l4jMP1pOJ69v8eJtY3b5497mT7h4urRcvyEZXxFyHmwla8/zUphcrNbVbCMg4cdkn1qybSYhTu",
-	"jAaLoYLwxnD+oyImqSn0DNKtMQ/zjBsRg1xg+VLoxdmDTx9jS3XIderfSOtY0Xq48NylVLm+rDs8GABq",
-	"I7DKUhc+r9tILBr1058P2Olj1rvkpZLqnCwpP/35Hn5J0Q+76D7RCrzypxNxOeGlhdjS0rLes9OX7PMv",
-	"Ph/sHbjpfCuMPcdkFgwC2N87MHXjCdvfuwdwBwd7ByZhJ3uHJmGHe/vkjtofXEE6KIRl7aLlRMBCcorJ",
-	"rxfWNMPkDQVGYlpeXArsuFWekowxhQxOoKFKQwdHbMwLQ0W8LqQuyJjmzWSmrn8Zwb1DoMiFLjA4AyMX",
-	"x+LSJ+0DwlR7c+xElC7CIGw6ZH3TfmCwiKqKwkVlUpfS1IvQZw8pIZ7tYy58PauhgoN9zCB/UGUEtejR",
-	"NFV8IjDWFaE1e4qXiPhg/Vqg9Q82Ea8Vcww9ieRDTIvMRLJYL1ZfqqH6/SOGjDyvSmEoz6lRKTZhpQCb",
-	"ptVlV9HYbo0SR7OEj6zKUb4ZbOMPUbGsq48w27UTh3GdXoXXOtKZn2C6KNCPOEQJfL4YP3WxNCcdDsYN",
-	"pFM/57ajd3F1Te9W30DfX+lLNuVq3r6TSQvctklAE0JrsxGRXjZK/3s3EudBDMR50MDhPPjAOJx0n5bF",
-	"4ohSwqLA1fUzSgIOiMpr0vjRR3bzYtFjyEXxEoeDsfQXmuK9KbocxYwWM4fNaXLeSKyis35D1eVI6ro7",
-	"K7Ttm4vzWxK/sJdGjgr1m7ay3Gu2kLC85JcUmFjLOiilHMWyg0OmoxAXYmWZUBZFA+V4G8lEQxWJQrTO",
-	"Ib3Ot4aiB90KgRFDhUDENY+diFCVBfDukw5hRGlLo17F/F4V2p5+89uPPPAjD/zIAyMeKKf8XNw1F+ef",
-	"Xk2LLRInkDR8ZGM3DzMdk15KgkDanTCiYjfMlaBvkVUlWA2BKp4JXoryYWUnO0d/+O7dd6HD9n2oa1xS",
-	"QKQeNwIp6oD6Xq2Mm91+fd7hrQ4MqKcE6xy35S8axTdHmcLARU3UpFuTxUafqQtRGsHqYoEwXm+la6B7",
-	"xe3Vj3c1+vuHvtQ1jIVXucRKqLLoN4uxiMuul+sEjyaSeBLCuKOsisA3sxqEvNGLC15c6OabziSHpM76",
-	"qIGD27WPQ+vfZx0NUwEzrMLl3EBR1Aqra6WxmS5kJkW8rO6FrlZfPSOrVvw4fdHx9HPw6wgTUM3xz6mw",
-	"pcz8tKRhuc4CyFQDV4q29bt3/98A",
+	"7L3dbxtJli/4r8Sqp2GqOkVRslwuS2hgVP7o8rRddkt2Vd/brGaGMoNijJMRdEakJHaVF3cxwGLu67ws",
+	"cJ8WuPvx3AMsGot9q32f+Ru2/5LFOSciMjKZpEhZdlUP3ECXRTIzvuN8n9/5fivT05lWQlmzdfj91kTw",
+	"XJT454mw5fx4bEUJn3JhslLOrNRq63DrVGRa5YZZzS65tOxMjHUpWAmvSHXe30q2SvG2kqXItw5tWYlk",
+	"y2QTMeXQ1FQqOa2mW4eDZMvOZ2LrcEsqK85FufXu3btka8ZLPhXWDeNhVV6Ip48Wx/BqIlgGP94xTObQ",
+	"pYSvZ9xOtpItxafYcL5yKH9XivHW4dYvdutV2KVfze7r108fbcF4nuZiOtNWqGz+WzFfHMgxywoplN3J",
+	"JtoIxd6IOetxBu8zaRhn51rnLJtomYltZifcsil/I+AXWDAp8qGCIQpjmeFjccSMEMxOBNMzUXLo5Y5h",
+	"UZ/9ofKzpf2q5xuNdQcG21h3fvVMqHM72Trc2/8igX0In2HVrRUltPnHPxzv/Ge+86fBzoP+6HDnu+/3",
+	"kr39L9793VbYLmNLqc5pcZSxZTUVynbvkAy/M5kLZeVYijJh3LCZNlbk7FLaCZPWsLJSZtku1p3cdDef",
+	"hs5x2C/5uXhYlUaX3cNOlbiyowyfSJke43bMSnEhdWXYjJ+LI8bPDExrrEv8dSxLY/GnMIu3lSjn9TSo",
+	"ua11h+zGB8M9qdSyK1BW6sNegHfwvplpZQReyC95fkKnFT5lWlm3+Xw2K2SG53V3VuqzQkx/9Y8GBvr9",
+	"mj2+pLeo0+ZUn/NirMupyJmZK8uvEnZZanXO4EQyXTLOLnhRCaYra2RO14eaPWRT/+5Q/cPpi68Txhmd",
+	"YHY5EaVgnKlqeiZKdiYKrc5NwrhilXqj9KViYymKHF5xF4TpcqhKrs4Fu5C64Fbgr7jVLJAuuua5FoYp",
+	"bRkszRyu7btk66FW40JmH3X18KAIo6syA3JpLLcCDu6ZBCKOPxL96XGiqQyOurgUOeNFKXg+TxgfKvoJ",
+	"bqyuLONsLG3CeHgZfqCF51PBZE2KkCQaK4uCSTWE6Z9P7LZbjyc4jFyoj70gVr8RihU8e2OYuIDtM5me",
+	"CVZIJExSsfRqx1+dHfzNpP0tJHpwEnjxuCx1+TGH7TtmAnruM5jGmc7nzPC5YVoVczbcko2HhluMq7yx",
+	"yUAs3iVbX2v7RFcq/9jrDpQpD8exviTiShqLI3vJ54Xm+Sutn/HyXHzsAeKKiqtMCHc7jCgvRHnHsEyr",
+	"sTyvSpGzQk4ljfZUlBcyE68Vv+Cy4GfFRx9wzi0/40awjCtYyTPYa55NRM6UvkzCHGQmQCIxk8paIH+5",
+	"vlQJErTeGGnoZSktyijSIOfmKnOzN9Bi7s7Ymch4ZQSy7dC3NEMFhJWr/GxOIkpbmtwJ4mTXZN3Tu5Hg",
+	"ifN9pfVzruaO6ZifhEzcMeH2lEA7pWH6QpS4Au4k3NZ0Xyte2Yku5Z/ER72az6UxUp0nNbtMAhPUJTAE",
+	"/Ubk7EzwUpS0Kq1Jf/vttzvHlZ0IZWGUYlFgSb/Et1NiFVyxFGlUyri1pTyrrGC9kycP2ef37w22V2sR",
+	"bVGUlm5W6kwYA5fwsbLSzj/mCn4rimLHSSlSzSpLUsBZKfgblParQnhZ0l3HI7cCJkWyaBhc26HS47FQ",
+	"OVxRFD9qCl4VwrHN18pUs5kurcifi1zyV7geH1ukwCtxx7CH1OsOjAIuB1AhrVpaDONZJmbW9FGmdX3A",
+	"EI7xeyA2T2HZcOx5LuEdXrwsoQErhdk6HPPCiPZI6reZnZTCTHSRmyNcSRxDIcYW5EJmUeuCIQl1LpVA",
+	"rWrMq8KynpmQsFcUxPq1wgenwk50jkdxFo3j+60znr0ZZbzIRoW+HFldiBJGMJqRYCeusqIy8kI898ou",
+	"nV84HdxuHW7lugJGkYBWRg/sDQZJl25Msilsed3nVKrRjBszGpc8o2X4fmXba7f8cWYy0VNtMpFzY2Um",
+	"7XzEi9nk2tN4jA+9S0jCgU3f8D2Q9UZ6PBrLTd+ccpVzq8sO9f/hRIAEeQnKPxtzWVQl/UtH7UKUuczs",
+	"EX7QdiJKwzgoHfmFNLqco95mxdRcqw5CP1/zqaDxXD2ll/bq9eVlyUHdrJR8Wwn3O+yWm4AoNp711ag0",
+	"H/YowFEuxIUojLNR0KP34vf2Fw1F9GI5Mm8rXhKjfI/zrytbSFGOMq3fmFH+wSbr+zG2QnvEn8SH66us",
+	"lNlwvy9EKceOYyxSguax/+GXj34ArTt6hYQ/Xuas9/ThN7sPH36zzaZ8zoC2Mn7OpQLlw5qhUnoqQUNB",
+	"nb3PHjkqvD9IGAdJiL0+ZY9fHrPTb3e+OPicPUcqzL4YDAaPhirjhTxzHCXunq5Ywc90iVf1jnHkmxlh",
+	"DXTM9KUznn2AFX8XvtFn/ygyCwtas6aXupDZfEPO9hi10sDUgC+NdZmJxPMtU3OsjVnU4lTfn+FswljW",
+	"eHs5m1jj5Q4mscZbnSxijfcaDGJzet6g4B3keq0RNIj1Om80SO+NKOw6lHSDt1p0cY03m1RujRc2oXEg",
+	"4xKdKwoNxjDQkjspnmG9PCJiy8kXipLXDvNdrPn8Id6o1tHoOrBL783y65isJBarCUH7nDRP4uI9bOxZ",
+	"99YvHqP4gq3cw++6qLA/Hm2/jZHnChsC3QEXuL+1kgcM+vdiHtAfDAZ7HWfsWPFibsW11L5Jr8liv74b",
+	"AwU9e60VH55pHyjsyr3fuWJVLu3jC69Hrj+Hmjm0VGNQhC+5YblWImGif95naVmpflYKbkWeJixF63J/",
+	"LG3jM5/NSn0Rf1MKGKbI0/6iRyqBEXQ5dYDQet2bDL+om3NoqLudFhXlVuxYORVdz+bCcll0048ZL63M",
+	"qoKXJmFSZUWFej33FvYSTUvcaNXvdLDF28btlp9gshWun+t96T4+0+cb7qK48P7gtThZdFoWWFlrBq7l",
+	"rrE+5BUMzyw5PGTANkBhwamqcmdmOHRWBbzDXsiM7LSOLA9VVkorSsnZuNRTNqvOCmnAQnpeyRxe7hAf",
+	"eZaVIpcWCU0CXtrzqoAfsX8nXJ6+eImWBTYrRSZygU3R5rKzObqGeAFXNmczURqthiq4ywvBjXDuXL/S",
+	"C6drKpXX9RYFBZQiNtxe2MLKinxxpZ/A4+AVI+tHBo2zTFdFzpxd2b+Lq6VYCrxA5ClsBvaFK5PSkUzJ",
+	"LXE5mUdH+0zrQnDVvDYLc0abaveFisRhPAowImA8aFM8YqoqivYMJhyOikJH4SX+bcNEuik+tEKWfNIL",
+	"Vst77eMqQM2P7EfO349mdRpRLjLvpQwGAjQOXEoj3MRiC8Hi4q3DLRoiJu1UtNpRY+SK6ZxKKYLlkW6d",
+	"ra1mmZ4KvE6dFNTAvQEJZMk+YryDfwa2Ziq4wTuLamG8le+9Yd38rx6hP3FhmZL6ljRlD7dUK8luve5d",
+	"wSLwo2dFEe2aoYZ4yNJa2gOeR+JemgxVGol68EtbyoPvgqAGdEpqBd8F0QwbKQX8ciFGXnQdkQk+YWmQ",
+	"1PAtYWRe8WIE0hp84UQyg61MtdJWK5nBL3kpxzbts+hb1gtrBkTQHZht5jYBTWPen2w1EBY4N5kt5iw0",
+	"Qh4WWKVLXb4Bpolu977vED1OfpcYt0yqc2HsIb6ixGWIDjKFntW8ga4lV3iaTx8Fgzz6rOtoFfiVkxx3",
+	"x7D9AZtqYxmQeGWHyksl1IdJat/3t8LYc7CBkJiCF8ewnhFiqNLfPH7Fdi/2dm0pVG7S7T572rjqrFKF",
+	"MCYmHYU0aLxg3AxVWNTE3UV4Odi38aqMQaYA4UaxvQFrjXOo0Mma+H6ogXqrekjU6dtSkHeBtQgm+O3T",
+	"oPeMpBqBbJR6UtzcjJoSl5VyLg60APkG2JQjVy7MUTTrO4al4moG1zWcU5M6MirtUDWHXJ8vXYa1THDU",
+	"SHNhDZ3dR1XTJRpVU5fq0KJiPchdr61kK1Z8ltytWAnCp6KbVes6OBJ/9reSLTzkRKSaSx2RHEdsk62r",
+	"HZjZzgUvcY1hikiEnkOMl5smfeHnip+e8ezNi/ETaf0XXy3OGb//kmdvHjbmjV+fnIa502e3AKduzI/d",
+	"9PHHp9EauKdpIU5oHfC7F/Vi0HijFcEvHrllwQ++H/NUPcKVofgauKNkIOwiwN74mMUPgmxOFDnc+UpJ",
+	"281sYptg/b9r7LEQ9yNRPOzgh5d6x8gc7ml4ihRSIE94eC54YRI26N8DejnoP3jw4Fpd9cGDBw1t9V73",
+	"qGypi2fA/cyG5snTibic8BLFbWiEPOGG9Z6evmD3v7g/2Nnf9lw8xAxBrEAhFQbJtZl2ly45msjzyZq2",
+	"HfdGoS/XfAH3X6z58CUvlVTnmwzIv7LuiFpiihtes53WQBqzThqL1ima0FadVEWncFJzL5D3euGjsIwX",
+	"/YQ9LKTqs4cTMe2z/fust/fgi71tdvDg7vYhS/d29k06REGbgvHOxFyrnP34531gtD037u0jePSuSdE7",
+	"G565y04fHbF0Hxph9lIDb1dGZBUQFP9Y4NTYIp63I5ae7BzQOyx6JYHmh4qf6QvBfoXPezc6StoY7XfJ",
+	"/vrP/7JPPR/s7JmUjXVVssWehyp0vRd3vTe4SpkVqvGKcx7j0xiNqMdB7GjyIViyrWQLlmMr2dqnTzCd",
+	"rWQLxgO/Da7WpPiwqXvUAvx11/+1H747OfB/HeyF56B9OBlLwmFfzPjbSkAInxGWUQwr68E1/vygKuur",
+	"PQPKoc7RwBmFGt/b218r1Hi0892v/q5LjcAA8E1DAhiZkUjs6bNvgxQiOAzSNJVa9zDYg4oCxNtMi/FY",
+	"ZlIoi7Jvk5+blLTcTF/wUoLwnqJLV0xndp6QaEs32pCVSQloHbrB54DsJSx1ih9KTik4jNPEtYseZdSe",
+	"hwq0ZzwybeJIZGLEbafaVgtdoPD6p5ssY5VJi9cmzIXfsshSs1L99M/BOzinzZwjXY6ReGcWJ/5UsanO",
+	"RbEj3lZkoNdlLspDBhyHl+wPZ4OEne19l7gvRrqU51KxP+B3byuelxyUUfdcws72v2s46Nfzwzhzzd2u",
+	"4S8XAh52sH7YxDNSRXL47DXvIBKs5U5Ituqj2tWv/w2E8VJe+Y7jtU6Y+fFfe7////6v//Lt77f/+j/9",
+	"Pz/+3wkr9aUBsSl6jta7sWS3tnarF5bsyKuvg4tf5ibceJUzY/VGNyMfL/bgJVmWi/NSCAMrOC6FyPU0",
+	"YQp4DJtFNpLIx0aRSKMLUZpOcRWzXCKHNz1PZCWoW5R+YL1dHZ/f3esP+oNuG7nzfmt13TV8HB58l2yN",
+	"C35uumyGmTWMn2GEFQ2EhudsXEp7E9faoS5PpH1S8POu+z8R/EIKY0l7u64h1H1OJ7xEC5jM10t5SOKE",
+	"k07rZHCaNpfikTRWqszS/TVepRiTHrEq78nZn65dGSenw21ARblzePTTCGzQyw8VPcT8Q933A3h7Y+h7",
+	"XUNHknvdyJ/jQ++SLdV1fRxXrheM9fCQgkqklfAWiEqhAeLaxZxp2ckfKKAi2B6cNJD46eqS+V4Tdl7q",
+	"agYBr3NHjqUiPmpkzVnWj96CpX0Jw+o61Q0vezuoFJIlRN6kssAJrChBkcXB9CrSZZ2PusHdtm9o4kZr",
+	"23XzOsGH3kVWDZOvoI9h6XNxIWnopjffvdpOvND8b//9kv2aKXaJ82Ym44W46QTQCXPtDOgp9zzchZFG",
+	"Es+L4sV46/AP65CM79oS6MtSYHaYVowrFghuuG9JdOEkuUZL4Y4hWdQpuGG0PtFqCakdWZt+8emBJWwe",
+	"HaULZ/t9mbex3Fbr3ZJTejTybzen8frh6+cs07VaVZtsGiadYMBZIJBe3hmtRbm+cU8HCubY2bXvucfA",
+	"DoCHeZRxlUsQLpaSpvAEmK0zXQpnWU55ZTWpHfgZlIkrINDYMDqUC/lGsB7qIHDqyOALSxSJA0te3l6b",
+	"jBE1euhH2UXL/Fy1Al9vJ//5Sl+6zikWFi957sQXBSetkAbkGs1MNYV/lE8xTiM60y3chFmtf4e/Da8s",
+	"XuRXPpFQsArGhPZmrQRz2b5o4HbbQ7cYY+KRTcWjGaFdWuS3PirXdzbR2gjj01FNresmjBdG15Z4x/np",
+	"DHCFxpCQzercbfVBdJrymaDzmLdmFaZ76/OKhsrNG2Js2PmfRKlHE67ywm3y4uGCR5rEwFAOi8tjZZei",
+	"BJPGzLpogFLnVQbXSKqxVNIKfz6PSKv366IE46U24vpYDUq8JQIepLVF2SxpJjd7tdvRPi9bxae6e/W7",
+	"aIwX2bvuZHsZW5r1Ijdp6JBNdo86UdMTAh0E/0qk9AbRLFgEguTrBY6avgaukTTMHQ1lL7JGLChTnfZP",
+	"hBNQT3SZXW9UaplclgQkTDU5DPGQoh60vjJ5xo3sjHiZu2gBEhBMFPorFfhDc9NJ/G5kmvEGtus5czWd",
+	"8nJOKuRMlsIs17claEH8gihSJkCMbvj3nJ+CYSp9w0eglVi6gEtkvkg148aO4vjA9enSN/Fb3aSp4Bi1",
+	"ELcPVkNdBvbEbdoMXOjydCzY+XEH/GlIKM4rWuGuaUV7vfScP5Nm0wC+Gx+gDWx7raO0oOJzM5rq8toj",
+	"+RU3zzVp9hFaw3VvfS2ubISssLANZqvZXDSedZacVLzNrNUvlFjQSWtcjFzyc6WNlZk5Yjz6iAFw4aRJ",
+	"28qkZj2lySqkS+DopdYEVgFO7J3Iie0eIKfoAB/xjmzSFFalv0EbXWprwwuLk8J+id0G1eeGil3WdvGu",
+	"ZQHFSGJJSc3dL13bsbcOdEdRkfp2w6aDPavT2lTy85uOOQQl4F52B7rvDQY//qXX2lQ0WzaWenu38fHG",
+	"ajmJDjeeDwlxa+57FFc+invuBlYo5sy/YAikAF+44UxJ7Fpm02lbPFALOmIDus/+qN1GuBudrfa9iZYy",
+	"DDUc4miblqxhdDAXbleyQCA6z2F0oZYS1NNgOGiblDDCFqFM+uy4DvhCd9qM0qdHZAJKj0K8Nfw6BkrX",
+	"j7ywzae3ki0fNoXDpmjzdaNu6jG/pFZPfKPRT8d1+9G3J6GrMHnHJTcNwm/4Bm/B4ddwrqzXHjg0RT6q",
+	"/X6L8fi1BQofcl4DSW5ZiMOMowijyK6muWKh57Y8cWtm/81M7rdpM78mC+t6mrmpIfHmtrpFY9sNrWVO",
+	"uV/TkvDxtO9Yze3QVJvnfoXm2kXxHsmi6jaZ+V/YGPM/EFFKgr6J6bJSOZ2X9ULY5q8dOaRQnP/3f2G5",
+	"a2L7iO0RjyGbT//G+bBrRL09jl2NG8jE19nP+x0RES7x571SeVZ7jrxwTqEkNBLPqU2DKm1ArpdLfqUg",
+	"AA/RlZ+5hMfX73QdsAXHE5hcRpR/BJ1cq1/Xj3b81HCfrIWtGM8gfj+yE7keW2ON8qC6r1I4eOtpZEu2",
+	"ZP1cvMZeLep3/uQ4jocdJGxvB+Ko8k7X4pEDJet6s319G5dytbu289isXMAI7W+DJawv0lpGgdZ2NdxJ",
+	"99yclmdBtY/xegafV+LKdhh6yPgmKNvAARiUUr0BS8+ZthMmFODL+FWsDeuQI2wocwDiL+FvFwjAS+Fe",
+	"DVJ94y7dzni9Fx16izpq7Xj7YnXtvQ/A6IgQBf7joj14O9bDxMEeLM3RpqBcrMaImGh6SBGi+B1DrB42",
+	"1ZhlxBWb8GJcp2laXng/sEugaIZ/pBBKOhaXo3D5zGisy5HZTyEcddf8cZ+cMui5Id/XUFHPOGxIDKOE",
+	"ibB4OIxmJgLmN4ce0mYEZ+ckt5KtzmGtqUS45X/kmsYolm99w+7HJ+LyJDT/RJen+6g2eKPY0qw0zsC6",
+	"hTilZCcyzGVXAkskqzP+SM4snnenn30leGEnG9KEWrD0q6ff0EHM52suDfX74rdbfggn9HL7lLuuug53",
+	"RLc7zrdyicJcRdlAifcxJ+5YJD5ErwSH+awQrajXzw/WCnr9rg21O0g+v/uuMwy2Btp9WQq4YDemzJGm",
+	"tz57u8b5QehHTv92rgom6eIdAQhhm2OtJ401wyVXaiP1k6DB4J6sz33qJT3FN9sQS9cwoHaadlAj/Dg6",
+	"j6EL4dxQMK4nGoJA60CO2DhHQc/pma5UHmfoJiwt9KULYQY+lYag5A47L73dbe9cngixvrVzHUgWfXmj",
+	"XtqSDuZHuJwJLy37+XVt0DNuBR2H9VDpbhKgTQcEaa3Pfj2qiXEpMiEvRH6zy3Oje55HGuiqt4KmupaB",
+	"pS0qR3DSq0Oz/IOd+n19z+oWOzeyjgLd7K69msRyilf8Cl5iaqOBFruElcVrdBOHhfEDbo4JrMWxKkDw",
+	"ESS7YMKse4AXhQ9r9L/fBHqmbTKmUXWu8k1SyB4JKzJyo6ocAvCVDS5Ol06WUIh5O7DLIELvzLI0K6WV",
+	"GS9GaOlIAcPan4ftVUnkrS3yrWSr8wcht21v74uDuzv7zL/jscfHLvXYtnMLr0bZTV1djcndZDh+LRI2",
+	"v/EolgGcQKyNnYg5xdP4xUWH4uVkDiveX4KXIlzSWjfOQzwrp8wyegmGSfODVb0pekOhO1yWTx9+xX63",
+	"z8Lg6Pwl7G7/7o9/+fd/2j29cWdvl3bWdeITtjd4rw6NPJ/ybnEtnIx//ye8V/5w0JVqRoGl2M4IgxJA",
+	"fFgz1SR6a33V9hRe+hLf6Y68+Pd/cuF3CqwiLuhtux22ZqMUdJUvD4PsXU5kNqEW3R2h+ORTAOhalBzy",
+	"LdrGhfuYLKMbi4d8JWLE8+Ba2EjE8OAR1yL0tHEINwZKcoZr0g9jI+wysWMD+CB6oTvbK5b/1/HyX58G",
+	"FI0f5S73ygYJQHGrC3biVrQg9HAuL4RakojTwjhYbNAZwrFkSuo9YGlCQOztmM5pQDgOLTq8kRhMxivf",
+	"/rtF1dvBCeLlGfFzMZroqiui/OvAXN09y7ULQIF53RRaZ7N0EgezsjAB79SlkQF4wtgH/S2qMus77m7i",
+	"nIreGunZWvFV4e0X7vklEDaRKyvemusCR/0oWsGZ4e4mMXFZvpbdx6QVoEmEZjnVu0GUGh339UkMdXQt",
+	"OplvdvlYb2hxuQGhJp3zPelpw4ZxjQ29SWvXY9ux1eW7RdmeclUH/Qf3+h2E83pT91oEsjZsuvQ1NEWV",
+	"lSL2zhXTld3R4x2MZl/AnRkqwurupSHWIKXknBhUBqktuVYRNadXk+LtFrJMhBX1/gQWBGyoSeT8vLGT",
+	"yM/XWABZ80Y3MLaRGHkLLt4v7n9xcC1+942o9frGghVkfNk5gNARUNZpfQjnEcrUGR8DBD6dMxFnYHmT",
+	"ZUBxxXu83W37/olYgKMI3Xygi9wHytFJz/y+tSp0UOpgyubs1+xswH7FzvZ+/MvVEUsbOYXud/dTSJxP",
+	"h6r5Hvy7/+Nfrn78V0KF+eLg88939ltXhlreStwfroutZCu0u6ZzAOf0zLcWfXrhW8Tvflc3C2WQ6oDg",
+	"ReELgpBA8HKV4JJWjauxLKwoTRKKwAXfSmR4IOiQQhrrgAjZuCrxqMKDtBSrATMWcHI2AtB4gfU3uqb3",
+	"7USz0rm7amfHEfo+wiX0FQvnlEaEyIvp36cth8e6FQWbHo+/R5fH3v79bp/H+3o6/jbdB6ucBvGK1GGw",
+	"N3P+3E7yyCpUK/JJNEEtgCmvC1qB3HH9uDV6/kbRa/Tq5qFqhEh7k5Nygm92Kb1LIum6khVGLTs4vtpa",
+	"iPbkWiK/n8E1yQ0LA9/4Jq4yqjazBUjWQRGsGfW2gO6KzNsR1ZDf4FR8b/WEby61hxZoQEmCGDc9k+eV",
+	"rswI3k9vmisfu03WONlLoDRShKQa4dgAdgixq+qP4sqWfEY1J+EzPV1oAvb0n97CT0qcY7A1/q1xbiA6",
+	"1S03pz1UPYeeFWdMdi4ZGDMaduVDNHQMVQQZuZ2wtFLOtzbybkoInDhFsBXv9nJnr2YuGS/LOY4Ytxad",
+	"lEOVKm1H3lIK25BiOAhLidrSgfRy+KZxwQuPycgvu1JM9c9F74zqEOFOQ3ntsgW7kD6zXKqQ+JyOpSgK",
+	"UXanNU8FV6MNcx+846fLcAPPgJ0vxKhE2bGc4vrz66E/WkCXi/EUs1mpr+S0oXrhs51Oa1/+xV+nKDMQ",
+	"rrgwFpu6jZwImXckRHTjdl5gtoPPpQ2L2t6TiAosnojVNNWJDZvR1L8lV+1qB+3LUsw4bcKpFbNNwd4U",
+	"44V8W2nrz9SMl0KBzJoLVs2Y1RiqhgWHdFFNRULF4egDkLnpszrfLtSTYD/+GcKpM8sVwL53pcG5fkfT",
+	"YsMyTqs0at+o1YVreMMGcKq3OyZq8oYjaofH1Iu2MNlo8K1Ou88NlSdcTA568pA9OLh3n7myh4xcL2Zx",
+	"B5d5NqlgBbqWsM600/tkAHggnW8mtAv+WrTtL0FheaIxXp8X0lWJdKexq+ajg85fU7TEqT6BlzvZnapT",
+	"H5eWcmQzTohPHdHd+IATx1fVgkx/v+PUtZ2nIKdYzWCLXV0BkhGoBMa9wWApcnxluvv56tWrl4weQBCY",
+	"RvjzvQbi7cGgExzKStsFfno60aVlhjKuAiVx5wda6RwqfbEYRvj65KnXoec+cCRuzPP8qlSHKOu8EWIm",
+	"ykP3zKE7IWl/q61Wr1YL8Fc/xygtZYXvsXFwDr9f84K88kUBpK9w2l+aTyGWVNlvHflDxhkUaGcv6SUm",
+	"ldUEgaihAnm6W0glzO6wGgzuZgr/Ee5TBrTcfZUOFdzNh6ffoPSf0hPS/XroXudT4R5nVPw4FG8nQXL1",
+	"Ovt5rVzZE4+gtQE3+zaWtpM6X9oFl7sF8fHl5FnAOs9qB1FP6hp8nJ0VXL2JQdWiDHErEEB+u6VTla58",
+	"K8EWNI/C+8T73XoMX+d6o2gmzKYZOGA87dDGQNLbwZLYKR0k/AJcASm7nMiC9KCoADYL9a+xzn0pMo0p",
+	"HD1sxDCuDMSa3xvcdahOUZnoth+h7tzJnNjxBoZQWIxv3fv+8wtsos5WMctoOc+9YmBYb6Ktn5fZZgU/",
+	"33EyknVFwUF/O9fMah+rhcV3+A1g8lxIe72RDUva5wdh9h3AYvHKrbtQoaPVYeRkX19y5rCID5iSus4Q",
+	"5Pmig5YX8aEhy0XDK3EE5wvaIg1XY4SvpbLqvooDyASUYlHHDFHCoQcgqYNKj1gKh2wiijwdKn+/6xxp",
+	"n9icuBYSVqmxtBRhpUtmqpkojchdPBcfqrW67ftp+HycUAVIZpPmEY/WhvLD3eTBjeFGvvY2Yo8vGw26",
+	"L0/idt1334bmcQdbZ24z4iHVqDIr/FF0RfB6wH4qfdntVSr4+ciITKt8iR9wzEs6EOxMTKSDMp+VEuQV",
+	"DA/xYaHcWIr6aIZHuWLuS8oGrCwlGxKVFjOPpGXnwpIFDmfaq1QJAi2seALUoq7jghYhqssRKGVCeF98",
+	"e4nUiXvT4ZnRzg0qFdvZ8TR4BwllVRaOce41pEOXlLFuapzvO/Fb3H39a4vMYtZfVE/Gp/H1nPPRW+ic",
+	"xYNYdabLkoLGtjepPNFM+ttZ/G1hR09ivb4NrFAbhDyA3HtBn4Yl2swrgoOsipuVIVzh5dgkGzjjnVc7",
+	"qlyI6PDksOnzvFGlEJEnwueYeKYoTdD3IbW52+y3RuT49THEG/pR3kiVxwyVZpo7dUKMsgnIpuvT5rCL",
+	"D0ND0ZfIOR/6JkFlgKUD07TxPHW9YJQGJ14CLQi/OZ7lBN8xboWrQtkB1XVNyjNxujDS9cfnPS9uX8K2",
+	"SmU/P4hv+oPB4P7egwf79w7uHwwePNi7ziS7IdYDnt3RElu4EW9Xk15ULAQkrUgFi4jYiiDaUu4ylnts",
+	"ULL3nt563jEYuMNRw9Psr3J7yxZOW5xvHvYnXqYIVmKlC65xb5dwjqqwT4TIPwJE24YVPWPK+0EQ2laH",
+	"WXSGU2DcN15ZXZ+763E43cxvCup2EjCkN8wbcqFGucgc3vMsIFpkoi2Jw6NdSSlrxGhHZWQxXPsWitlm",
+	"cp3aALQyj/zTK8TErxtwiM2Q6GsAJ1qbGcYWXdNrcCBaw4zYmtOqAsbT2vwMGjwOL9PnE9fEu/qLm0Ss",
+	"3Mbivy+YQARtAJ4TmmgrvNIFE9Sla/rL96pzV6pCfCN1UUN0bkD/HNldYrxwkehSXejiApRXqSibcjOp",
+	"1TPINu1zZ2VJ6VxPuKCuE3P1rhIGRzv8FNeF7NYES1ec65qApVDHq1HAdfUFwqbDJMJ7SbSo3dulNq7A",
+	"VFYKaHpdXuU2QMo2ylmZaWNFzpaAwN8o2mmdKjO+6NKmhWU2hFE9qRSVxuo4pL7DJRFZFvgQvNMYr18u",
+	"FeeI/CMR2cxcrF2EDMCVp9yCJX8rqT8/PP0GyeNN4djWd1rXQRibvrMBgJteGlX5Huxu89DDkyqKOeyw",
+	"jVI4Qyiy2n0kFouxNkq25u00O3IOrB9p04jeX2tavlTFtSkbm+G7NbDYwg6G+9KZuBIPv96fpEYLXi0/",
+	"VsprvR8TiHnRFIW/sZkoPZTJ+vabFYRm3cvctWvrL+BaFQBvAeTkA0MkbhpeuhrzYAF7cMnq3TRl6Qbs",
+	"+WMS7Jj+rnorRL+/D3ENyVht++VNKO5DndfQp8tJ7x0TfnT1KqY8F0OFhm2Mf4RK4v6RnfD+dp89hngS",
+	"uvCABBHavgO+JDpAZLQP4Kuso6L3oTPi+LcpGLP1natdNMMILle7CC1AUjECaZjJcs64Hao0OlOu1GV4",
+	"zbmR4A0XvOUyv/rslR8jhpjWgLCLpdJ9efA62bUZEbrBgYyw51qbjBaet5Vwvzsb4Yr8NCC+QtlyHhNf",
+	"nD0GxK9Nhj1L7DiL9zZLMAjscgVzrCe0lKyEyPcPzNU2jbGPo4I7NbgNDKQL6pMz/a0ZNV9LZ7fnv8iX",
+	"YsTuLZM61wgVXmIAbsR/blIM7HqhrQu9J5rdyuW8ESDTJzgkWsXG/dhUq3eR+z4aX+SMn3OgI5GBiKpR",
+	"XH4w5X8z7PLVmSfHnfHmzWCJc35BZUwRPIVSDzAa/MbpIjcBVI+9eO9VmjAYyRbj71mGWY2+/uByUvNq",
+	"MTnnvSCp16RSS/JmXmEghA+mZ/gUSD7pyxenr1BMwn7N7vcyf7dbP2nSJGSY+IyTXr3vHTXCMRl8MR8F",
+	"8mcmwhfnLcU4QpYhH/oRS1spASEuZn7DzJUunwPc6TuGyRwDQki8w7QdcJagMm+cPez2PHK3lDBz6xkv",
+	"q0fdDFL6IN7d2+Cct+zPXUjXuQm8VBwEcI0plBbF+d11ySjcDVbchylhK+sbSW+hJGhCsWgsbfy0WObf",
+	"QWSG9DWEyZRqzdJ/G3uMm/J3LBOtl3G0SS5T+/rF2U1N93jrmnTs/tpoL7Hc8beoN6y6Wp0p3BupCtS7",
+	"uZm1ZlPDRhva9IPlq59meiYawbmVMod1WDMuzSEc8GAQPKyr8ORTqdZ0O2BHJ5UyPuSZvqAOTqh9/Apt",
+	"ciYU5cHvjqkjGG+NQ9fJYf/9nzyFIQC/3sn+tsOpZM9ePGK/rtECkXo8e/E79usazw/SdCHQD4rXHmIz",
+	"p49qR76Hb7ehGhtG9PcwNdaC33WoQlX0kBgwxiD+lPIDHAo5Nm92//rP/42wQH3jDup7qOjpxayBxA8K",
+	"/qmLC8spiHbGJQj0xNsKgHOsboPn+UBTelPk20fNgr2H7ReSoapXgce1DoAquhEc+Rq3vRiW55DVaxnF",
+	"N5eVwozwNmo7cB/EmceXothGUcC6LqxfM1QZ+t9KtnyHCAfYeL5VEnXNQxtO2zG1X3/xJfR0mje+e4Zd",
+	"Eppt8xdfX/2UIuiC9+QWsSFugGC7qrDJhzAr1Cz1uoJnS4hVw8L2EawLC4t6jcc/ejhe3o9qaritRX7u",
+	"LMgb+yU2iQAoRabLfHkMwOoTny/7gdLjR+MwmI2RKdcTdsXVjCOEQqUyUVoulZ2v2V2zPu963fm433Ws",
+	"0H77fgvvrLzrhe6uCzark743gU9pJIp3SGnepbDRzMNLwFWX6YJUvbC1Fc1jWPXQtLG9i//UPBpeoehv",
+	"svxbMlj4uayLrFuhhaXbBhbS1tc8IMvrtXmg6c2hwnNRx9su6DfU7pKVpGMSTbFV/zg+LOsrHF1ntZEo",
+	"NhalUJkI3joYgdXZm5HRtV4FuMHU9ahdLWllDp5r88T3spWE706hk+jzM2q3Y8w3AceMXY8buZZ8p9cD",
+	"ZYYu1ln39y5Tsp65M2Z1C0bPEzd67zb0Nx4qg/q/a6+mdZ5E7428Y/oxS9iEwy/wiltCZFjGGzpsvTXx",
+	"uWOYf49F77HXDtiuNdwbpIr9ZHznFs4ILlZ925kvFIVuZ+/vNqy3QBEQHnS7H3G7CBlvfzDomPMtcb9a",
+	"a98ffCheuP5pjxnUtSvQYFjXndoGKAtPMLFO8BxEvtfIUd/c4Kx6FrimNwWe/kCEZUlxh9Y6kN/kiBVi",
+	"bJmurMctaPeyIdrr2sAtTQYf3fQuJoDx5YtR0qUQzIorGjuhpyBkbUbxzGAQLnlmRRnqe1h+lrBCKufD",
+	"gM3OeFlKqFFWCluVqgVFue/tV0uwKP84HF4NBjvw3y/gP1/Cfx7Cfx7Dl3tPhsOr+0+WgGm+AuXihhF9",
+	"N9AA1jf8L8VBN2Dh2kAWgMe7BGtUq5bEj4qsFLbPTif6UjG0EYFOeMSkZRlXzoOGqALoLV7ThE49Jh7i",
+	"1k3k2iK6uEU3kzn8It4CMwFsVSyDAjhCskDgy1o9PWIG18o56ciB6vLpeJVLy2zJZdF/nw2secPBKnNu",
+	"V0BTN8awG0jnmpdC3aa5CZK54c5fixMO/X7pH75hVP81Zb+LUNhojYQMVwUJLqS2wiwBlrKaAd4P7PhU",
+	"qjyqKywNszAngG+J8BGYX5DE57eAvEZFOEnl3CwiO2DdrLXAL8PTjQrJax1HasAXdV0gKmWlMk9LW4Sl",
+	"rEQdiXEpVa4v2UQUeVQudC8ZDAZ+RajiS0HFUHWRC2PdAxg9ubyW5YVPRNokMjTOX7o23qm7yHi9CVG5",
+	"43Dyw8FrDDBeMn/GrvEsNe/Ie+RavVfe1BQW+2YOZ9VV/jrZMh2HhpxadVRtLi4kCfM9xf76z//C9pYB",
+	"HoUbdtOiS6Ig5Ibl4J++h3CFofMM/DprcERcP5w0LEicsBX3vXT/X8YX3rlQoLMCmMXyCKFwRBl3dGms",
+	"i0JfmjhHyDcCe1OCzNZyhjRr5hd6XfdIc+Cnrpfmt0+jPpu/RD6RhZ9Ow2iaPzzT5ECJiNZHCJvfFJ9B",
+	"AMXvJpoedMY6dDZ3yMIblDstjY9lG4esRQ8HFFPTqaRCCviwWVINQapRzK0XH7hZrsRyjSicyTvGa0TL",
+	"YaGVAE7qwIrG0iZw1cNBvWn83uZA4U0e0w2lZ3xybXjWZ7FGe7Z2vHgrQ3Qlg4rjUhphKN5oG3Cw6qyT",
+	"+hQ2z0Bjrl30CI9xfDmqCnuOdbTBzgO+Mz7eefLd91+824k/HmzycW+/u7DA684oomOGcUToeQZd12M0",
+	"Ts93n0F4UOX+/cNsNv2uXQDh7v4qnfN/2Pkfv/t+L7m7ZDzf8FJylYlQlGMTwEBEkqNi5+S+v3CtsXGl",
+	"KCKyVQqSnT46ZKDGs3SmL0UJ+OGmd7UNAZqDH/8y5Ve9KyivOJVq+4/ZHtkG8SM2Y6a8KBrhAxQcOVQN",
+	"V+CR68JV9TB5ynqd5fi24+7Zr1gGlUPI/96SRgbrOtv21nzQmx5X814PITLYwqa7DvU3NUVoYQVherwr",
+	"xqPmUQILJd440uSSw5cGnsb8dsYNXMVxE3ZyFSd1o3tJL7pPT/B9GnuAJvoY/G55IPdNogzeN5Z6HY5b",
+	"g6B2pGOMvRdp1rX/v3yEAUCDH//SG+tK5SiFuvie7V33xw3ZEDZ4XTUFNLuccUCDW696Qk0nbjiszZGm",
+	"rmGi4XSu4W2WU2m7dwLY7A+/fPQD4yDBQtLZvF6HO8ZnkcXFLdc4fnAZlxVI9wCgfjw3WMtbCyOuESIW",
+	"JEaH34hLd8f4ACuW6akwLhlgLXtdJEU4inl9iIg/xK3FWrhX8c6GRQ8XM6mBLJryy5qe4viMfbx0bRf+",
+	"GPDUOhXHKTAN96QPl27FVZ8JBLcCrkpxLh0m/UhvvmiR+3Uv38KmNxpanM41ZomFe73IOqWSVkLkde/p",
+	"w28o9SLTykpVSXWest5D+Db22MUjijmma4hOont/fdYZmnwammkcmKjJ1rxu4L2/yUGKp72+paa5t9do",
+	"CM0uNtjaW0k/X5JeEMw8kGs2FdxUmwGurE4N+9oF4bYqlBBoOBskwV4fcg0qJW9aanFvCZjnYIXQemOu",
+	"+VEDBtfhAT5mKNr1rnNFFREfcpXL3ENDbnCmICtcLEmdwnkIH2icTbQ2y+CZyGK3shmPt+6LnS02AtU/",
+	"KXaYYpxHZsLLJQaPgpfnoG7hI3WUo4UyQvgy08qXV4PyfHAQc+EKYWV+tWLxz6VngoZRqxc3scxqK7ph",
+	"gXndMXZl3sjZjPQcYt6ICnzEBNbL1nYiyktpumssmGo64mdm1LU+//bff/jlyeMf/KqAnLuT8SKrsEpW",
+	"jaCwIPx2je6Gq3CTeqCtS1I30Zju0nMSTmESjrXbjeX3xg2wuX7PBDd2h6yzxh0n0wd7wtUfB/17Kfvr",
+	"f/k/4NP8j/up+5nKlXiX1dkcoMHRjEACSDvlCm2Lzu7QOy6mQuacCct40U/YP/SH6uGk1FNu9XnZZ1+y",
+	"+/cPWG9/MNjfZvt797b73rThxwYd7u2CueDHf6UAS0AmX7B4ROaMKzBh0DFnPCu1MXRXDLjhCn3ew09D",
+	"dfpoOyQzw9eNaWwnDoES5kvv3zEMXLinj44cLDcfqvpY6bEnJnWldsLOCFYTd2N5DGIBEB3pQqnYfjuZ",
+	"wa2+6ftOHMWi7I7ocIdypd5mY6opjI2fYYijYD4ck6pyeVySoVp6kxifanRVgqlSKpdMp3SDAE11KSC1",
+	"g0MyRjHuIlp99hiXg9RQX1uZF0V9Nw2WUXDLMaq/hrRdyIlpl78fyyuM9TZ16kozjUNpNFC6w01/uc/7",
+	"+O88fD93n+l7g//CUq8pNoYr9zV1GT4/VRenb0v7+9Z3C5/3O176T63vFj4vvNT4ApNMvovpwYu6EvFG",
+	"KAD+rNbrzNxJTdwhD3WUZVF0IQCQNmcgg+XagIY6J+tdstW8CV2ewbbjrPlC0uh6JbVs1F2+vSU6wmpk",
+	"4MgOgVx1WJhbtw+6YK2QLIGpYCH9rJNIKSFyQ1jZjhxbDcbJJSSvx9FTWDLu7qR/CyQOehMSTs+hVCRA",
+	"EuVsTKNoJmexNJr1IaO2aa2Q2cPDdww7fUSoSH3mS87fPWQcKLOLwL/UdZNAbkFcysV5KWDM8K4QOYAq",
+	"wQY8uMd+6UpdmhlXBqZA4TlINWG37g+2Q9XmWnqPhPb9ztoCrYOGPuOsKqWdn6LUiHtzJngpyuPKTjr0",
+	"Yfhal/JPyJEO2Zf4LCkkGYYVuYJGfYZBQOaQpXW+JXgu4oRLLBraSLmEJzDnMj1iRghXlgzxs6QGPKr0",
+	"asffrB0KBnJpciT2goSLQ6qFuIm1s61379BNONaLU4pKXxFYiGnUTKgUMqSCn+nSGc0jbT+wpATYO2Bb",
+	"NX5eQLxLyOROEFGO0cec11VTAkECJJpCZnOCqTICvRZOqk9IyMGmEjYrtDWJg7uIYSgMni1XdMMk7HfH",
+	"HhMamuSqEec1VEP12WfEEGmTPDoEtyRd9D/7jB2H8YG4ATe/shECC/F+V30HPLmw7aXkPuEdtAdHXwzL",
+	"S36p6H7MqrNCmonI2Xklc46Re9hWve60ODA369RgyuSHwohwN7givusY8emLl3hPh2pWikxgreGjYMUC",
+	"YuLXAsUpSCclMJmZKI1WHg7MmbkI0GyoaEMdbphb5Vq2LMVMcMQ0k3CIWOpNFCmu7i9+wR5qdSEUfjdU",
+	"O1RqjAgxAWPA+hjF34hRhr2+kv5bqCd49+7dB6yXkn5wyIJlIQUSxhgvLnHDSmmtQGz8168eOiz8K57Z",
+	"Ys6MvGLjkmfEQ1guz/HUMtZL9wf7n+8M7u4M9l8NvjgcDA4Hgz7ZAv5zun3IXmpjz0tx+rtn/pZMJUiy",
+	"VC4mYUZDM0S5DZXYhaEx6UCgYDhj0H+4CzYzqCmFkXEkc1jMvg9LUxsB8P75JidIQXtwLX0cWkLxjGYb",
+	"1wns+ozEItNnJ/oSX4ezPpsJRSWsmAGLEJzhHndHAm4Z1QrAO8MCvDu1SpoWGewdQTUslXm6mxrxNqVU",
+	"v0YpLmP1zCDoHGP7f7x3l+2wPVglt0RZIYWyCfsHfsFPkRoxqSivOnHLYydi6pcHlwRg3OCYIEGRueCH",
+	"4K2nGqMctx2XO0VekR45h5/LQIzAkGBI8FxtmfYPGw23BwSF2JzlGq2R83zTym25srSQcJ2Smq4g5Bx+",
+	"DhVGEthkuHv41jab4K7UQ+I2xalScWA6+WOpYGZPHz9+vHP/3gEjrdj06fa44F4q2/w1/xohPhS+Mz/C",
+	"W+ECTXCLoupz0uCoyQWKPzZ8np60JSBgsKZWD5e+Dn4stbbbOHpQ01OvpXFm4AQrUeCMnBGSEe81DqHH",
+	"V0QiImCgGniHhHfIUMLD+myMeTtXaAoWKSs0WDQ4CHtFgQcNtR3St2D9Mm6zCUbVzKk3f8qRtZQw2tz4",
+	"gywNy3VGLDCsGfHNM3HkTq+BCOKKGjJWFgWT50qXwk/GTsSc5RrfhVkmzEi4dKDNlcxhMxnG89y9QVuP",
+	"hFCPIy5sEs8/TeLou0m8Bo3ckfAfYCXwJNW045DtgbT3+QE7Pn349CkrhLWiNIkjffh22gexYwT/OYT/",
+	"7KQJTYlTlVCkoNy9CucL32U9EnZZWpOqdLvPXiuJMDDQskspgNairAJeBoAmzxfASm+G6pgV0lh3Grli",
+	"56W+DCcNS1exXvqbxzGgFAzYf+O4W7qNOJW4rznQXShfAWsIO6QYYfPND2GxXcnUQyfmpqwHzzIj/ySO",
+	"SPjCAaGTp6Ed4PSc8LmN1wwW0hfP6LnsUixrgt2D6BaVv0gDnrN3+I5laZBYwtPbSWQ2QDwwZAzGB6vj",
+	"w1SVg2bh68DDj+h5SJrd1Zv1tbiyD+nLbRq0r8ORIh/0z7nCIbCjvxVi5lcqnAc31183esHqetBM3SjD",
+	"cOpK9JnbXDpNimGEdRpt5DZdQXw9avUQzYZgw8H1L7ifuSelvbSx904MwBPsrjQ6mA0stGYzXRQkc0Ef",
+	"eOOO/c/SMD3jbyEqr466TF/yc+FX7AhPj5244yUzwXKJNJMouKkElurDv0j/QsOq38AE+jgYDPDc46Fn",
+	"rka/c4XL0qOv9riDoEUdjm74HeMluMSD/YG1quEZItm2FmyTSMA22+hSBrZZiCTcLLwfOKTfVcCcw+Sh",
+	"sVr9iClhVsAtjm4y7evBYAAsWqrzocLr00vfQpOLFV+DNY9oZqAEoGAJZd1siLqhnjNUJJvDbqes1JUV",
+	"TifeQCk7dtAEmL4kUA0dKg9LQv0cwkB+oA/sB9zCH9h5yYHe/zBUP+zs7IT/w4Oxfsd+iKk2+wEB/UmH",
+	"gokQ4XfEOnE1PuFH4K4JPRzvZWTxA/frLjpbXaexGsl+YM+ePj8lyax0x+AHat/LiE5JipSjxI2kPlI2",
+	"ANjhzUriGjkKViITrvum0sp+ANXKWD4ed3bbPpLmKNQ0CWGvR8zh6sQOAye6Nc83jYC0ZPYDwz+ksagl",
+	"wbRRwEQpDrqvvEZEoyBRGdoYqscN5RqpE1ELOgjEhqB50v/Izolle4FxD1WHLn7IuDthYIQFYvnZZyBw",
+	"aCU++8yZYKdoqM6n5PXxM0GWBUMA4fAKbEXSktG6pGtiHbqjCcINPO210EJYgUDNQ/ViJtTxy6fMmzZ8",
+	"LZkpCfeMuytUzxxkt9rqccj+8B3AKfp27vYHFK9j3KWghUJFAm7HC3hpH1cXXnn6CLQ8JTLrXHEGxLZj",
+	"H8mcsCkvQIOjcqck/eEpuNBvhNsgopJ7RyS8Sv+to1dgZXArRQPCp+/2Wbo7Ebywkz+BULCLRWjpz6mw",
+	"pcyMg5Pb1TOh+Ez253xapEOFyrDSrpNe6hcOF2LbE6bHaJz3VAhN9biRii2Uuu+luFV0YHfdt7+COh6p",
+	"r7U5VKkr+g0ctqMgfYo9mNQpxl316VGCcfW6oTw3fQuMBEb0+YPB3spa3hBZi8w2IJib3f3dJiIf66XD",
+	"reEWcfGJYxz4/vYR9f7w9BuWiaKAbteuDg7SSeqq9IC2mLPZZG5kxgtKM+2h7YOxieC5wGXGr/e2fTyw",
+	"6+j+rhd9Ujecmm/DeK4rO+6bIx5FImDC0hm3k0OZkxic0iAOn+ZiOtNWqGy+81sxRyGPnLtOY5pKAwYX",
+	"5ayu8dJjQ2QBksY7XEuSsF21vnTXHbXn/nowM1eWXyXsskRvz3zmcgKciBbFqPNSAOs9osNDhEuaoQJd",
+	"aMe1dlb5KvGMU9l4j3/vBJkeV17NiD06nukPFdw5VGf9taUnQBQpBcoAsl4j9kbMUSs82N8HvntvMCB7",
+	"GtCNoRpSqgoYYfCgD7cCKkvqRM2RzNMj5ymujGDnMBCrw5hFCT7C/lB9rUlnl17BrzV/bAh+iPWNYOMj",
+	"NdLLAunvd5ySuvMUAqU5i5dPK4EKbQhZRBUQqfYbTGPwFi4MvSr0+RCjkkDncTFjqNTt9ff6A9bDjZDq",
+	"nBKvsSmWi5lASVArR6Hnwm7jJV/QcEjSR10lklRRvUwpmeoyaCNUmFjV5il4LUcK2mdtbcoVSDeRBI8y",
+	"8i0IhqheoE6MCTFO7tvG5mlLvMFsYwse+A2QXnAg5Ipk8GoGp0VJJaiPYO85m9drRLYib1ALklBD4oh0",
+	"7sVaEdveyBK9cYcsOaznDyDZ/Oi8bUd91yYlZyOB7pl0sgpqNzNX6pMueaQseKMa66F2mhOMMmNCoaAW",
+	"Ymu9Rc4tAjgB+oXMBBBNGMrxjGcTsbPfHwTA4lJgr2R0fvb04eOvTx+Tl8G9WCdqb9WvQxpzWTiPgznc",
+	"3b28vOxz/Lmvy/Nd967ZdS3iO+CUkbYQTUcEZbkYh6nf36MHHdveOty62x/071K+ygR9Np7xw9/noiux",
+	"xB3rfchFDTXgZ6XOhDHIxwt5Ifrsa9QovDDQDzWKIPQw3zrc+o2wX7muWqFZ+wNMjXC1veDPWAj4R4dw",
+	"TLT72qqd2AV5bVrzwGHCatwbDJY1E8ZFgM+KFyi8NBxeW4d/+A4DXaB2OUShgJFaYHKCRYTvP9QzN1SV",
+	"34tRSxf5ZYn2U1EZApgQV/70MrLZt9f3iB4RTFqSJ7UCc6MS9lKXb3CLfJEZtCIYS8dwYU+eu5Fduycw",
+	"rt1ZwWVrN9qx1QsL73r4EEsfLds0zGPpJsTC69KdgJg1L78HQ2bEOMG8fVZJUPTQa7vGsXfNbXbs/SA3",
+	"WOh46KB6+OEn7D8dP3/2Idb/VWzuXbX0pFGsSWOEapDfwFi9n85JcSBCVmWJE7w3uDtUdSBee1dYOtU5",
+	"Ee0Uq+zDlUkjchb6kuiJdeX9gY36yP5D51vhpTsKuY8WIfeJHySOpJeeCFvOd7BAQ7rNKmVlUUf9QssG",
+	"SOhUo5+A5NtIohwqpa3MBAaMSWtEMe7DyPF4mDRSuMkS4n5ImASH1ZzsU4hOK0tW8PMld/+EduUDkuMT",
+	"jFwQxnSdV+yeWU3reePzCW/dvf6tU1ra14pfcEkxkauOdj3yFcc6SH9LT/Znn2E0w+Fnn7UDGBZMQbr0",
+	"Fg2UiAnrmSmKLUG7dUJlYElCaQhB6GFxGq7TBhQ7mw8VeBqjH/vsibOHZ3p6JpULsjv++tERS4Gg4R2R",
+	"yoWAk9Zvdeqwm+G7hJ1pO0FRuyGGMbD2GpdiX1tZsuC3xuIjoL+Qy2LL24WiBSPFKqIp24cYccs6vAJD",
+	"Fdu600YJ7k4XwJGvvR0M4UPVtLZTQjnOudE0mNH7tbEb3abYBVKcoXId1BbqhcsGU37oSwbWugCi9ABD",
+	"3UI92sMFHTZBN9a7anHs+7uku9kavuP22gwo/LfXZEjYXq/JRvb9sjajioNrNRoVMmzf6ce8LKQwlrWK",
+	"woVrg2nuHWOAC9YYwDqpHov9AwD+Yu/i6prerb6Fvl96J9+yXtAU1OgoAHZAOboQdbbfCDrb6wo6696g",
+	"+vbs1v4lxLD6YFwMDxhc4S4uBrEVaE7QY2e7R052sA4n+5LnPsUIX9m7/pXXijufjcjppTV43xNdnsk8",
+	"F5i9cbD/4Po3Xmn9nKu5G535iXhz4MYPKd1XGlCtI47suO93EMbc8ihsIUjuOjUamqwc6yx9AH5OtYrR",
+	"yDaWts+eUhpLCITTKhOR89qVY8ISxhRJTt+MnHrvilBK45yBpfAtLRH2cAkXuc81VwzfcpW4Puz9WqbR",
+	"4Kr+3K/U4OD6N77W9gmmC/+N3sFjXyMPjqi0hsJJXVQqOmk95NeHvp276BFd646uvpPenu2A9ikgjeKk",
+	"aweuVzvLSiUemg3Fcec1jNyzaA6rowVX3cRjnMLP8jri0J7ppTYGXCbz6Ur+DK5kdPTQP505Iu9voLtM",
+	"y27gBlcuBGLicZtp814Xj3AKDOOg39KoE1YKl+gWmGAL1SLkd+lSnmN6s4/DsRPPKuvaOIVU5BZnEn1P",
+	"qW9mpMfg9IR3QkOBj3qUAnQXWnC7SeUFjz47ca23hhEKG8Eb4ROojAiN6EO0XT5KTziyg20NFWYeIkKA",
+	"ViKYeSzUc3ROXkzXRnHfGYXRDrDtCFBYHucVTWek7I/c4h/54GoKWvF4Shgi5TTCocKS2j6mOUTlS5sE",
+	"76KfbR1KhcYw2AJEtuRmqEw1E6URua99HYYG3gnTbqYRsePW+BDsbw5XqPE7xYlib9rFiNbjcJqQL99p",
+	"h4pMbhzNB5i/pESA/2MvPNKmMyDG9cazCZcKYyjP3PghUu5g8CAZKnT+pg4qxIzc2879fIIoaL2D/f2E",
+	"gg7AVZlNgghXByYEDgrtHYW0hqGi4UN1rud7A8gk3d/fTpzNIspmgAwFB3ACfMh5OtGzPHKnKj2kMdCJ",
+	"w5hlYtL4bThicO5hZVzyayj4iQ26c2xGIbh7pMQlROpYVghuKHXbveNio9094AV8Pad2IA3Y/zLyHkhq",
+	"ZqqNZfuQtdQuKe+Hgo453yzcggIuUHMSfgiZrpQ1zCVJ+aa23SikA7w3I3A7x9No5NFED6a0fJTm4HYJ",
+	"3KiJ36JtPNd17S/qCexjI8zCGgmVm5ESInc1CNNDNxkYboMMwALAi8wFcLgiZ/7yTeT5BD7TfipelhBV",
+	"BL9gRzAXfBs6PMIwBmjERfnRWNwIEowvRyx+h8Hiw5suJ3OKvz0XSpQcg49T91btqMZF3u4SbYioP/aM",
+	"4j2FG+SwX+p8fmtyTRhZkEaa6ZauHH5Lrtr7OGpOjNxEcTPY/zOdLUH4eMntJNBy93LC0hbfRqS/5hST",
+	"VT6l/2Ay3WANme6hVuPCIV0e7K0xppd8Xmiev9L6GS/PBb13b50FMNWMqkk/F7nkr+aEdX6wv7/Oy87l",
+	"DmLgY2XBZfE3KrU+boeruigP1Ce5Fwr9mY6k2bfZbUiys0Lb/kydr6U/3sDGg3lWhbbokcDOzMV56mb2",
+	"8uvfMDnl52KVbviy0Pbl17/5kNohjmHXrUKHUfhMKk6WtnW8zjjLT/rgT36z4OBEimDC6BR9cHuMP+Uf",
+	"4Eqd1oH8QQwM+fBTXr6BNHyf3RwgoBOP5TKWmL8LkCAqJ12G1zVcZ1yJgp2JQl+SvoLXIsQ1cgrGwTCr",
+	"oaLsDN9+SMuOUr6hdednuu56n37zEa63uTj/1dWNwkg+Xeif6YU+/ebjXOg62WU9c0/jUrfv8NMFfAGY",
+	"E0WZAvpEnYUZARu4CaOqR+EsvNYOKYmAbnN9y5kvDc+4ZWn9fVprb6hdeV1vu88WIqD77GU9d0qQbUMV",
+	"cDX3+fwYLz5xGehYnJ9bl3QCDYJLGhbDEYWjBkDtULnkSFDciDSlWMk+hXBvH4lNKchYwFpX1shc0Oo4",
+	"rAhIgCYNUJdEyBgnQ3yfxQZ7SjgeQ/JpDQDh+sFo86E6GDxYrtVFi/Kz0+vqsW2k2A0+yACoi2WOYmde",
+	"m4VktoRizFyGd5mLsr/1SQf7pIN9cId6nKyE+RUe7CViLzEXWJPHrOApju/cgvfgucYiH468YUpy2+bN",
+	"rGapS5V0DMkXCUkp3p+8fsaFoGXOfkLmLqeQQkuis7QZO8am0Xzvx+HqXxCpx1BTQs8nIxyvTWlgIg5E",
+	"WUOSBTtuMBSq6VNodS7KxZlhlNmDQ+ZxM+CLMQKxD9UJ1hQ0sfcSEYMgawKZp+ki8SfYzm0ECNw+caex",
+	"/USEfanFjkYl8k/E+hOx/ghu3nbK9wf19C4Act+yRk9BF3EvdQRGhwKAoc42XRZV+00L2/tnGE+xAKq+",
+	"ROluLPwn7funv3ffdCNKdEZarLBNr6mGJ+uo2Q1ExOX3jD2NwDSg2SbUSTQZl7h4xm02oURhiNSPO9o+",
+	"ChgVQzXlPl4KfawB6OtsziYccWmag3KucQ9LFjomCDdCuAyySm8qOJoG0rBJAIqlhyqXBeLhbTtwpOmM",
+	"lwIlGwep08i9PwxZO0OF1WuwTIevV4NN/PLR9XVtIEQT8b4NKuNDhQVY/vpf/7eWw7hGXuzHizwKdb+h",
+	"8EeakIA4VN4U8eOf9wfslz4ogb0+ZY9fHrPTb3e+OPicPcfW2ReDweBRDAzZ3MejxdgAGhYClJcyxzVK",
+	"fAjbUDVwEPFrH0vgQ9qO6/RuXFpfXodyJ7yYCpIt4d4cdwZrNMM0fJGaJmpKiNoYKm7h8FL0A+b/tqM3",
+	"Go3r0rmIIvkfcx8vWVmpo1bQh8NhNA70eSFUxFV1ZscqJLloFbxPUeBKgzx7zysNQVp6QZihokRt9JIj",
+	"ngHFVdCMrdYUtNNoLBkqeIj0i1ITxqYPDsDBu6gkNEfBnGzJlaE4Cne/GgnjDxySUKikSMYlD85AqkNc",
+	"MREy1vCPkdJ25H8DpCGv3NSBPXDVY2C+sFR1I3FoTN1EywzlnoUEnLGEGBrAOzhEQPR4sx2aZnyMokAo",
+	"6LNx53BXR9GFQRQTTjE6S2xb3zRLwfy89J+uciQfOW6hq8DQGiJMCJzVlQUK80lX+qQrfXiZ7YSEE94N",
+	"B1ajga0pugUx6Hr/SYRftvt9/eGdV64cSfxAYQeR+QhvOkW+Iqph00HpgWq4JVbrXSNDpfTl9mGokCBC",
+	"Md3AMS05GZAg47vUXRniKIeqp7Rdh1mQIAcPe25DTlxKdx0qbwfzJryEikxy6yuwRF4MnNUlJ0YLC+Tr",
+	"xBjv6mFGxHGxNLGRVCME/EB0O4WmPlNlkzbHM0NFzFgXuSiZVqLPvm0Vb6D2IdCRuBo/F6OJrkoHnBVJ",
+	"TtK4drC+BC0g7URCFX8JABoH1mcHgwOPpY0Bq6VA3BxCaoH6FbrMzSpf81P1RFNtuc3YWq0/bF2fTLo8",
+	"vmyTTNBFbjLVBF/gEayP0I5JjjHEAF2WhMjt5qmOHzzByW/Fqjyneus/qf8/OStZ3BW4qtwdy1vV/a9j",
+	"Ibfrjz82LH354vQVa5v+om7ShBSj2BhXr8NYl5RA0WIuqSMK6QJ7gauLlRmGKiBnrckx020H3IirD3id",
+	"AXkQ/THZGz+83HR69L/W7fGjD+VgqEKmCflmlusINT18H094TFU/kL7QNdBPbvFP2sMn7WEdkv+7ioNM",
+	"Ml9B+27VP+7g8dbSCVoCf0EoEHFuHImpHlvybI6pR8scJ89d1x+QAFAXq1webv6fEBNu32dYFFHBg+ZZ",
+	"iWM83DNLz+8m3olYxEADLZw/lrlcz3BS9/pYE4awiig3Df7Ghx3G/Xyo6hraZOElCPvmmfdNk+Z4Ff3S",
+	"2x/sQeKXQKyWsp46pmgmkYnVl/Cro0FCI1RpdKhcZDGMrR66h9W0i3fxjmHu/hAdGSo/UOWEE47xJRSr",
+	"AcbQ/cEADcOlMGQ2D9XVoKZM5GGgEmIRQkRd89zEQGLBiG8m+hKnAKXsGBm6yQBQ1w2qlATofpifVCDg",
+	"klILcSorzKbPPfDPhxBjqPGfSHBxM+ugWaSzZrzwxpXWzh+FHUZsDzKWInW7TYPs8vHRtXP7p8v3yyrz",
+	"jCSNONXu93Bs/qOllX0SxX6GEYp4eQI1Smq3XyzyUIHSTZlZU/pyZ/oWhDBnpSQnHeV9x8AD6XIMVqKk",
+	"Xchw4LWrLVv4z4exuB0zMxMZ2MwjchbRuDXsblHOXj2iGvJr7+D+wRd3Pz+4fw3y13c/CW2v5dFPxref",
+	"/vq/UH43bn6/ne61ucelO2QN2bmjOzVSRi1Iko8+QCmQ5x5zPBIExyDcHF9Ii8pJo20DK2e8BTNXE16o",
+	"jahJhQTakJpsM0TNI7J6gWwZ8DJ9yUKPIBLics7EuVQKgUO/FCi44nNJG3xTGlc8ihlhWQ+dv65aA2Lj",
+	"UY3xqJ6UgaG48rkRCKfzdQis/ARfObAhAr53qBIs01NXA2aonuDqwNCaIzJC+HLA2ESQ17XKxKFvFsu+",
+	"hRKNbvloTwg8N4q0MK5fNEZymhfsaTlULkooFIL03qswUKShZT/UzqHHmoD90HXUna/lRuUh7CGGceEW",
+	"AA4JRsH4tCkM1+qTtAneQvd9n+cQ7OHR+ykWg0zPIVaj7+O0kuUuU/dk/GsKcDVD1enaCy+En+JB+LJt",
+	"NWxNXJorxesyciA84eHYo6gV1cXpNGpQHYDHuLkbW2djOMlbBb7cGwyW11v+2AyQluiJ6A7iiNEs/zZw",
+	"vv4WRVviFEhx9bgVFteI6aZvbmZbLKu1nUVRHbaF9GtdOgMLEJ1eVLa6Rtpy9IZ8+mMM+VGiLmENdIJM",
+	"Di1grzsBwT2SoD17rCnhIeNsf7AHznyuTFSlrEFiMXSxUi4NR0VlYKk6FFTxcRGYNLK6/pCz7+iS4hqB",
+	"fwlC2qHSl2FrmYBqzwmzWkPR96HCh8w2OZsAn4pcTomv/OliI+MEoWbq5SEr+eVQ5dzyGoPMTkp9qSCm",
+	"YQ6RvFF1K9Y7uLrapl6CNSlCnzoTc+0Qg+i+kxHnMFp0Nq2Mr2JLqI3G0prW+1RDhB15qxAsSch590hm",
+	"BT8TBSIe8tIgZx2q3gIuk2HnmkpoRXG9dFjspSvSb3y5VzPhJZXmj0N6j/wlkXnDZBUVSHdlhH7BonJT",
+	"Q3UqQMBYqEBlNZuCHa0UFjP9DR8LKNc5p9bxivkAmqGi8mbIjw2xdzHF4QOQFBWt8lBS+wcM4z48/BkS",
+	"nDtogFPnopyVkvg+Z6dfHe/s3/v8MC56RRCTYfEZN2zGS+NL1AiV6ZAlwXpGg8HPYq3/jGI8pwKOvZNg",
+	"3IpOubWi3D6ijoYK6o7FHb1dLFBEJ6jkl1Qd7WxuBZXYPeVTAfWpEo+sHiaVuNKqbsqhtF5OZ++zzzzu",
+	"21CxcKE++4wqTNmqVPW89gd7LQR3HAWKit5y5QqX42ON7T0Rs4LPsduyEimWiaJS47iitVe4OR1vbbbx",
+	"nA6xBFf8YFQyojndQADATVTI84mlebuuMToJBkwRwf5S2fqMYAknDI/18P0lzoQCuHXJEKDvYPAAwcho",
+	"3s0iExIUjxqnayyVNBMYD7TsyrWGzuAsO+IEJAU6uAeUJbwOZmhUZN6IebhacHR6KVaCycwFVAsGttqo",
+	"3AllaUoLT/bZtzjKhyS17IAh65CFl2sQwqFy1epc9WcKR/cqyMLxTImOgaBbdwwV55oVEXqeYbpivb4c",
+	"Tsp6ekY1sLaPHLJA2hanUhctHnWLZPNM+OrDvQMw2Xs7EB5QadjrV092voACaAWRPrw6O3QdAawEnvHl",
+	"uyiu6WDvi8FQ9dzUIb3iDOasAw5mOtxKj9izJ7BFD0+ePaGCfkLlAF/wTCrMTtDGHcihCuWioa/0F6nH",
+	"MKDtgaWAL8wbOZuJ/IidFVy9wTZN/EOf5kWHnArxYr9Oi6MN67OHWJvQBGcjAVWqOVEgVxCWChhifVPa",
+	"EfZDrV1AvPsPQQTSlwuVYkO12DdSYcHWuYBapalvIcUP+H7qK5z6IBT/sPsiKu+95Et8HRlS/TJ+bL5K",
+	"mi093Sr76N/yySaNnxP21//6v7NBq4VQiTG8jHGA4Wx7Prrih6EKiwDF/7D/upeaebZm6tNqFl7wP7Ax",
+	"lnlLqCSwYAPWo0dIFNvbpnqwO+xFhAQ5EyXsJKClOknAVy6foQ7IELuwQeERajBsG95XtwuxxEnuLbyI",
+	"nkIKbpuNNLdj2xtk4fd2D9F69ehvE5WbxG5aPUQrtt1nJ/rScVpXyhD4dZB+oCX8FUkvxpLRPYj7laa+",
+	"FGRfVXO8BSgi0INU297Js5URUHUeespFJqe8IIjZhMoKEl1DIqyQSqV7/Xti5y4WjdZUt19XhqvceBBI",
+	"DZVR0q/510BQn6pxiFhlhXzTqEdIEGZUKD+sSEkFGjnatUCI8YXBRVEQmwksBYjsnPB4DUzyjmFwpwNl",
+	"xZNFr6u4wG1euSXN/RISqeG+Mm69hvR7AmIOY74EPuMReyfFAGQfR3JdHK6nac7PAMSOYDgxCR8fOhg8",
+	"+JxkoagupgN8nblKsWsXcqXj0f18uh3ODK4xAavDGqOUSOvYg0Q0RM8JYjZcvEBYiWyBlYaFoCp4BcqJ",
+	"4m8mYaEJr8F5hCxg9MjTyBvtkFqhKajbAW+gxoIXmUBZSUxy9VVBYXFWJOG0x9AiVqsjlD+tdoiakKPw",
+	"KGCf8jlKQmeaAqZRZarrMroiWXcMNpoLEIrLyKUPTTjsXTTGulqq/iz4Je/3+6nfN7LMXeEqHA5VmqZD",
+	"9Qsny1DHEdWdTbTVKBXs7LGeY62LLHR7qOB4J15rIoWyyQ886U8CTUg8hRkqv5WJkvC8SJ7tJYP+vWTQ",
+	"H+wN9pNk5RODB190P7Gf7PUH8MT+4F73E3eTfXriYG8Pn6DT439P8OV7g+TbncHgYH/JA3t379IDd5N9",
+	"t6BL4ghOqs2zriKJ/7di3mGug5OBJy2IgcgyXPad04QxPGqJOe89yxptMproaNUcetm4bqEy1LpjC0kO",
+	"aFbhdSZIHZG/bJSRJH4LRYfqIQbJHUangfm0UlyWDchL/2sv2gv/wrsPhmxSRYG5yZZXjJoNLC4Ecn74",
+	"8kzkRCJhzlOpngl1biexQTnG+Pt46YIn1XVZgmVVJwf6JKMyVMfpgbzpaHXptPmhWrDhJOQTci851hAQ",
+	"+d2GOUdBFPrSZStYXOgUjQe+FqU0Xu9xvfm1Q0+gYnWQGXbaMl6AAr1OtMyZ1oXgCg/DegE6LuPZReiU",
+	"lfoPifn8KTjnZ4hLqY1lPFzksbTRZY49GNWq0Og4ubLDebFBJa7lDgxPb7z7l3sD4CGO2Av9rkJGq/oA",
+	"mV2Df4a+a3iJS5EJifmJTYK2rOLqDWSdk0p9aIQaGNZyWv0pHObnUHzL+QPo8N7qFbvtOBl6pFlnxttX",
+	"mrfHRT/0Xf1+Z11ol8TzYqi3YpngZVvM0ojq5Tksijw9crEc3icYF/qBcOiuGAZfaYhaPZcgo6BG6Qbh",
+	"IxEb1XKapRhC4i9Y0l1mb1QsJ4ppCPb1kzhoaKgeiRJoSxsmx1Oa3z1MYk9EVTTyv81Q5SKTQLIS1spz",
+	"w2o0LkIpVCYZqr1+1MtlY4hLE7kPWeonBUWV9uMmMl0VOWs4WVuP3233GHBJpHKhKq03DuI3nAcDFmMK",
+	"lNvqcu4drBzdLsHyhFnkrbbu9eP4xu7ol4Bw1Mh+d4YKdxoIBCjyPdC44t6SNqQNvt7oshdQkBchakpB",
+	"ThlREHIS2jXRyLUAhOOlwmUnW7olgeewAXp5IkoBLHEJ4I0vz9TGvcEWsG2IQ2qckEyXpcgsGjK9jQG7",
+	"bmpsd9AvxvJSju22i63ybnPYSb/k0naWgHKLhm3QelHcFLx6NFSfx8elARJwyFI4FLgovIDjcD9+NsIe",
+	"YL2gjcBNScjTFuAHaLBQhIkxf6uAgjdCB0NsIF5tJqNgMcC78hmxjrqmgSK8QNcLqc1mqMijdozpIIcs",
+	"ZvjjiSx/5V1XNcYS+tLQ2vbkq6cn7OQAyGtRCAoxS7+sVA5+ExjDizMjyguymxvWI+DpUKrq9cPXz1mm",
+	"c0EmI1tFUYKNWMdDVi8B++v//C+ETZqwaLHh66GalQIMm4qXrmA9nm54I+MKzMfOA0aYQTicI5bmAhhl",
+	"SjewPkX4C1LLJ1jFPGzkdp81F63hgJwPlV8h74xDo6LbcOeXLPWllxBrszYfKjMDLmgmQlh2ibQOPtNy",
+	"w5ZVBUf/RYlxe9jmrxP2q4TtJOzvE2b52VChVy+AYXDHpLbZrBRjeeWWAA4Ln2ljSz2bCAfSFeDMHY/i",
+	"wP40LRT5mRtpRLgktN9U5YlsyZ5JwawhVwhK0bWX7GonPmmT4v7Oxf6vRHmfltCfsaH66tl9drHfv9ff",
+	"Y+mLk9d/PBnspWwqjME4VqnY45P7DIMYkClpJaKUX9Z7fvpVMlQvvjyhn158+Xv8maZ6SBNL6CBWCrzi",
+	"9IvDWU+Yrg/wUFkJLgKfOwCS0QzDX6ltTykE+TYdzLwR5/AME4o4HmL78rKUEBBHUQoYT/D82bOXbFwS",
+	"xpYGYeKrV69eQp65CrEzdlKKGuKdK1apTJSWS2Xn7KzKz4Vlc+GiBCK8qhrDnoBAcHOcX2WJRnESAsc+",
+	"gmIR6MwqO9Wxpzb+wMGizGeC1bSnXxv+9BnwfBR439OaRuuw3Jq2YGncWna0b1Azw5HcT9rST68tnTaB",
+	"Bilev1K3GlpJqpMTP94/zpLaicTNQKG89R3aB2GEt8A6vZRoal8OhIZgnLk07C2ltEsnwqpMtNWmRgVM",
+	"h0XoYyNqB0CvVubALzt2YUlRWm4Q/erYbudQdGbTuu5lnTtRCyt32kkTwN+XxIKy1aGgsKJNiVyaBT3y",
+	"ktfLfeTCekihAt7hY9RDeJe39CAsKGpWwrhQgWXQqs7fPVRRr5ixUct7bR0c4gr8WXAb7nU3CvuX1ohi",
+	"jBoBZAKjTcDPNFLzKnVtVKhjeg4qkgp6iyJ3waLQFxY2CZCfLpLCHY2jEJ/AZN4IAY2DMtE5DG0lIGiB",
+	"CuSwxbyuI23I6phwEzfq1BQ/NdIChqqe3XJ3olvA92KIt+/vcaP6iUAcG/yxk38F9ZOOiiwbZX5d1OQn",
+	"FJZP3oUPb+zM83AarY78DG89PIudiOkm3HyFGdR1tPt9CMF4d8uG0HEdg0bkMmE8K7UxMC+6bx6Egrgm",
+	"mkl9gfLITnrErmEeoSvHSJ3+gaYgmdeAzjQuAsHyDIDggevYtCX6BlGxpSrHIlkBvK7G1BcYm/s1uO6b",
+	"Gc9hRLeT9vwh3SjNtfmkJvzsC9G2bylvndZbUxi8ULgz5VaUkhe36GxxpTNqi7XrAoOyM50vRYDypTWf",
+	"hzF9yLvR6mwlKpQf0Kfcww+CC7VwVDYBhFpy0DfGh8pE6dTSUnigJz8eOOrG6uwNM9oFojtDGqq57tUM",
+	"rc0p2gVTlywhrmZc5SIfReY2V/ArxZIQgMxLQe2pC/VNQ52GlPV+/DPjSa1ZlSKzXJ1XBS+ToarYrxnf",
+	"/es//7e7ULKrPUJdNux4FH87K8WMl86HBwl2lEsRJkogTNKiR84/PBqjDdtn57lZu59dnoGxYgYel0JC",
+	"soiLwgDb+gVEGZO5dfos8FhZDlWYp9k+YpGWn6A5FZvwxmNEHAj2/Rl34M7086/dF+zHv7B/+1+ZG8Iu",
+	"dr8dvJOlKLiVF3XJj6GK9gSU9TOMmK07uOOSAlAtpWkA2v9uD1b8x798sz1UvX94+JvnELLMfvw/7/X3",
+	"+p8fscdVyYHG7D58+ur4Ifvd6+PnUJ2tzx739yBI3wF7oQuNsvVddvkh1g7NUdXESG5UXnsHgwcrQK/a",
+	"ZOwDwV+1u/mJlMaF2S6VaRwT8uf6ZnhTgXGl3Txz93vYr0/xbZ800I9WRWCBVd4cjWbpeX5fUbBTTVuk",
+	"U9eDS8Fo/ga0rDWJUk2LPmlaPwc0p/e5Squ1K8zPX9MHE5clN6YShnFWcpWDqAPNsF7I5d/b/4KdSWu2",
+	"a0sFBIIpggegFP+hMiIrhQ3eWvQU+OhwVcyPQsqSKD1uA3yPMpLDABiqCTcTCgLA2LRCnxsm7XIx5BUM",
+	"9QPJHtj2TyRwYN/XZA/gNiW1M8ltAAQvKJThfu4X/hMD//AEB+8243RYIkLjSMWaLJueDnHouSiEFWvT",
+	"lxNxod84DQdbOnLJiHXq6GBvu1azHIKxA713JemiPFjvKCux3ZzadFbcLlLxCIfrScX17P89TKyvXz99",
+	"1Mn2DxZXi5blE8jiz0LMha14/2tSCpWbD1nYyjis1yXFrJrAiVG4MxoshgrCG8P5j2qSpKbQM0i3xjzM",
+	"M25EDHKB1UihF2cPPn2ELdUh16l/I61jRevhwnOXUuX6su5wfwD4i8AqS134vG4jsQbUj3/eZ6ePWO+S",
+	"l4C4SJaUH/98F7+k6IdtdJ9oBV7504m4nPDSQmxpaVnv6ekLdv+L+4OdfTedb4Wx55jMgkEAezv7pm48",
+	"YXs7dwHuYH9n3yTsZOfAJOxgZ4/cUXuDK0gHhbCsbbScCFhITjH59cKaZpi8ocBITMuLK3sdtapNkjGm",
+	"kMEJNFRp6OCQjXlhqCbXhdQFGdO8mczU5Swj9HYIFLnQBQZnYOTiWFz6pH1AmGpvjp2I0kUYhE2HrG/a",
+	"DwwWUVVRuKhM6lKaehH67JgS4tke5sLXsxoqONhHDPIHVUaAhx7TUsUnAmNdEeCyp3iJiA/WrwVa/2AT",
+	"8Voxx9CTSD7EtMhMJIvlX/WlGqrfPWTIyPOqFIbynBqFXxNWCrBpWl121YDt1ihxNEv4yKoc5duBKv4Y",
+	"Bci6+gizXTtxGNfpZXitI535MaaLAv2IQ5TA54vxUxdLc9LhYNxCOvUzbjt6F1fX9G71LfT9lb5kU67m",
+	"7TuZ1GIQBkw3CWhCaG02ItLLRul/70bi3I+BOPcbOJz7HxmHk+7TslgcUUpYFLi6fkZJwAFReU0aP/nI",
+	"bl8selTKsfUSh4Ox9Bea4r0puhzFjBYzh81pct5IrKKzfkvF4kjq2p0V2vbNxfkHEr+wl0aOCvWbtrLc",
+	"a7aQsLzklxSYWMs6KKUcxrKDQ6ajEBdiZZlQFkUD5XgbyURDFYlCtM4hvc63hqIH3QqBEUOFQMQ1j52I",
+	"UJUF8O6TDmFEaUujXsX8Xhbann7zm0888BMP/MQDIx4op/xc7JqL819dTYsbJE4gafjExm4fZjomvZQE",
+	"gbQ7YUTFbpkrQd8iq0qwGgJVPBO8FOVxZSdbh3/47t13ocP2fahLVlJApB43AinqgPperYyb7X593uGt",
+	"DgyoJwTrHLflLxrFN0eZwsBFTdSkW5PFRp+qC1EawerafzBeb6VroHvF7dWPdzX6u2NfuRrGwqtcYmFT",
+	"WfSbtVXEZdfLdYJHE0k8CWHcUVZF4JtZDULe6MUFLy50801nkkNSZ33UwMHtUsah9bdZR8NUjwyLajk3",
+	"UBS1wurSZ2ymC5lJES+re6Gr1ZdPyaoVP05fdDz9DPw6wgRUc/xzKmwpMz+tqIZGv40rRdv63bv/fwA=",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
