@@ -1,6 +1,8 @@
 package api
 
 import (
+	"encoding/json"
+
 	"curvekeeper/api/oapi"
 	"curvekeeper/lab"
 	"curvekeeper/lab/reported"
@@ -87,4 +89,23 @@ func zeroIfNil[T any](p *T) T {
 		return z
 	}
 	return *p
+}
+
+// prepFrom reads a sample's preparation.
+func prepFrom(sm *oapi.RunSampleInput) lab.Prep {
+	return lab.Prep{SampleAmount: zeroIfNil(sm.SampleAmount), SampleAmountUnit: string(zeroIfNil(sm.SampleAmountUnit)),
+		FinalVolume: zeroIfNil(sm.FinalVolume), FinalVolumeUnit: string(zeroIfNil(sm.FinalVolumeUnit)),
+		DryFraction: zeroIfNil(sm.DryFraction)}
+}
+
+// jsonPtr decodes a stored JSON document into T; nil when there is none.
+func jsonPtr[T any](b []byte) *T {
+	if len(b) == 0 {
+		return nil
+	}
+	v := new(T)
+	if err := json.Unmarshal(b, v); err != nil {
+		return nil
+	}
+	return v
 }

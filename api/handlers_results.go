@@ -92,6 +92,7 @@ func resultsOut(rs []lab.Result) []oapi.SampleResult {
 			Interval:     oapi.Interval{Low: r.IntervalLow, High: r.IntervalHigh, Level: r.IntervalLevel, Bounded: r.IntervalBounded},
 			ReleaseState: oapi.ReleaseState(r.ReleaseState), ReleaseReason: r.ReleaseReason,
 			StateChangedAt: r.StateChangedAt, CreatedAt: r.CreatedAt, CreatedBy: r.CreatedBy,
+			Reported: jsonPtr[oapi.ReportedValue](r.Reported), InternalStandard: jsonPtr[oapi.ISCheck](r.ISCheck),
 		})
 	}
 	return out

@@ -138,7 +138,7 @@ func runInput(body *oapi.RunRequest) lab.RunInput {
 	}
 	for _, st := range body.Standards {
 		in.Standards = append(in.Standards, lab.Standard{Analyte: string(st.Analyte), Level: string(st.Level),
-			Concentration: st.Concentration, Responses: st.Responses})
+			Concentration: st.Concentration, Responses: st.Responses, ISResponses: zeroIfNil(st.IsResponses)})
 	}
 	if body.Samples != nil {
 		in.Samples = make([]lab.Sample, 0, len(*body.Samples))
@@ -147,7 +147,8 @@ func runInput(body *oapi.RunRequest) lab.RunInput {
 			if sm.Dilution != nil {
 				d = *sm.Dilution
 			}
-			in.Samples = append(in.Samples, lab.Sample{ID: string(sm.ID), Analyte: string(sm.Analyte), Responses: sm.Responses, Dilution: d})
+			in.Samples = append(in.Samples, lab.Sample{ID: string(sm.ID), Analyte: string(sm.Analyte), Responses: sm.Responses, Dilution: d,
+				ISResponses: zeroIfNil(sm.IsResponses), Prep: prepFrom(&sm)})
 		}
 	}
 	return in

@@ -26,9 +26,9 @@ type Quant struct {
 	ISWindowLowPct  float64 `json:"is_window_low_pct,omitzero"`
 	ISWindowHighPct float64 `json:"is_window_high_pct,omitzero"`
 
-	ReportingUnit  string  `json:"reporting_unit,omitempty"`  // UCUM; "": the analyte's unit
-	ReportingLimit float64 `json:"reporting_limit,omitzero"`  // in the reporting unit; 0: none
-	DetectionLimit float64 `json:"detection_limit,omitzero"`  // in the reporting unit; 0: none
+	ReportingUnit  string  `json:"reporting_unit,omitempty"` // UCUM; "": the analyte's unit
+	ReportingLimit float64 `json:"reporting_limit,omitzero"` // in the reporting unit; 0: none
+	DetectionLimit float64 `json:"detection_limit,omitzero"` // in the reporting unit; 0: none
 	// SignificantFigures (0: 3) or, with UseDecimals, Decimals.
 	SignificantFigures int          `json:"significant_figures,omitzero"`
 	Decimals           int          `json:"decimals,omitzero"`

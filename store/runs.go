@@ -279,7 +279,7 @@ func runAudits(in *lab.RunInput, runID string, curves []preparedCurve) ([]auditR
 
 // runResults quantifies the samples of a new run against its new curves,
 // each pending review.
-func runResults(in *lab.RunInput, curves []preparedCurve) []pendingResult {
+func runResults(in *lab.RunInput, curves []preparedCurve) ([]pendingResult, error) {
 	byAnalyte := map[string]*preparedCurve{}
 	for i := range curves {
 		byAnalyte[curves[i].in.Analyte] = &curves[i]
@@ -296,10 +296,18 @@ func runResults(in *lab.RunInput, curves []preparedCurve) []pendingResult {
 			at = *s.AcquiredAt
 		}
 		state, reason := lab.ReleaseOf(f, at)
+		q := lab.Quantify(c.in.Report, lab.QuantResponses(&c.in, &s), s.Dilution)
+		o, err := lab.Outcome(&c.in, &s, &q)
+		if err != nil {
+			return nil, err
+		}
+		if o.Withheld != "" {
+			state, reason = lab.ReleaseWithheld, o.Withheld
+		}
 		out = append(out, pendingResult{position: i, curveID: c.id, unit: c.in.Unit, acquiredAt: at,
-			q: lab.Quantify(c.in.Report, s.Responses, s.Dilution), state: state, reason: reason})
+			q: q, state: state, reason: reason, reported: o.Reported, isCheck: o.ISCheck})
 	}
-	return out
+	return out, nil
 }
 
 // GetRun returns run id as stored.

@@ -1,0 +1,2 @@
+ALTER TABLE sample_results DROP COLUMN is_check;
+ALTER TABLE sample_results DROP COLUMN reported;
