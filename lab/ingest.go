@@ -119,6 +119,9 @@ func fitRun(m *Method, in *RunInput) ([]CurveInput, error) {
 		if _, err := isRatios(an, sm.Responses, sm.ISResponses, Pointer("samples", i, "is_responses")); err != nil {
 			return nil, err
 		}
+		if err := checkPrep(sm.Prep, fmt.Sprintf("/samples/%d", i)); err != nil {
+			return nil, err
+		}
 	}
 	opts := m.Options()
 	curves := make([]CurveInput, 0, len(order))

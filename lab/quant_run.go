@@ -1,10 +1,12 @@
 package lab
 
 import (
+	"context"
 	"encoding/json"
 	"fmt"
 
 	"curvekeeper/calib"
+	"curvekeeper/lab/ucum"
 )
 
 // isRatios returns the responses a curve of analyte a is fitted on, or a
@@ -136,4 +138,45 @@ func Outcome(c *CurveInput, s *Sample, q *Quantity) (SampleOutcome, error) {
 	}
 	out.Reported, err = json.Marshal(rv)
 	return out, err
+}
+
+// refuseLateISSamples refuses samples posted after their run for an analyte
+// quantified against an internal standard: the run's calibrator IS
+// responses are not kept beside its curves yet, so such samples are posted
+// with their run.
+func (s *Service) refuseLateISSamples(ctx context.Context, runID string, samples []Sample) error {
+	run, err := s.GetRun(ctx, runID)
+	if err != nil {
+		return err
+	}
+	m, err := s.GetMethodRevision(ctx, run.Method, run.MethodRevision)
+	if err != nil {
+		return err
+	}
+	for i, sm := range samples {
+		if a, ok := m.Analyte(sm.Analyte); ok && a.Quant.InternalStandard != "" {
+			return FieldError(Pointer("samples", i, "analyte"), "%s is quantified against the internal standard %s: post its samples with their run", a.Name, a.Quant.InternalStandard)
+		}
+	}
+	return nil
+}
+
+// checkPrep refuses a sample preparation that cannot make a reported value;
+// p points at the sample.
+func checkPrep(pr Prep, p string) error {
+	if (pr.SampleAmount == 0) != (pr.FinalVolume == 0) {
+		return FieldError(p+"/sample_amount", "sample amount and final volume go together: give both or neither")
+	}
+	for name, u := range map[string]string{"sample_amount_unit": pr.SampleAmountUnit, "final_volume_unit": pr.FinalVolumeUnit} {
+		if u == "" && pr.SampleAmount == 0 {
+			continue
+		}
+		if err := ucum.Validate(u); err != nil {
+			return FieldError(p+"/"+name, "unit %q is not a UCUM unit this service knows: %v", u, err)
+		}
+	}
+	if !calib.Finite(pr.DryFraction) || pr.DryFraction < 0 || pr.DryFraction > 1 {
+		return FieldError(p+"/dry_fraction", "dry fraction must lie in (0, 1]")
+	}
+	return nil
 }

@@ -119,6 +119,9 @@ func (s *Service) Verify(ctx context.Context, p Principal, in VerificationInput)
 // AddSamples quantifies samples posted after their run against its curves
 // on behalf of p.
 func (s *Service) AddSamples(ctx context.Context, p Principal, runID string, samples []Sample) ([]Result, error) {
+	if err := s.refuseLateISSamples(ctx, runID, samples); err != nil {
+		return nil, err
+	}
 	return s.store.AddSamples(ctx, runID, samples, p.Actor())
 }
 
