@@ -109,3 +109,17 @@ func jsonPtr[T any](b []byte) *T {
 	}
 	return v
 }
+
+// sequenceFrom reads a run's sequence; nil when none was given.
+func sequenceFrom(s *oapi.RunSequenceInput) *lab.RunSequence {
+	if s == nil {
+		return nil
+	}
+	out := &lab.RunSequence{Complete: s.Complete, Injections: make([]lab.RunInjection, 0, len(s.Injections))}
+	for _, in := range s.Injections {
+		out.Injections = append(out.Injections, lab.RunInjection{Position: in.Position, Kind: string(in.Kind), ID: string(in.ID),
+			Time: in.Time, Analyte: string(zeroIfNil(in.Analyte)), Nominal: zeroIfNil(in.Nominal),
+			Responses: zeroIfNil(in.Responses), ISResponses: zeroIfNil(in.IsResponses), Judged: string(zeroIfNil(in.Judged))})
+	}
+	return out
+}

@@ -93,6 +93,7 @@ func resultsOut(rs []lab.Result) []oapi.SampleResult {
 			ReleaseState: oapi.ReleaseState(r.ReleaseState), ReleaseReason: r.ReleaseReason,
 			StateChangedAt: r.StateChangedAt, CreatedAt: r.CreatedAt, CreatedBy: r.CreatedBy,
 			Reported: jsonPtr[oapi.ReportedValue](r.Reported), InternalStandard: jsonPtr[oapi.ISCheck](r.ISCheck),
+			Sequence: jsonPtr[oapi.SequenceRecord](r.Sequence),
 		})
 	}
 	return out

@@ -135,6 +135,7 @@ func runInput(body *oapi.RunRequest) lab.RunInput {
 		AcquiredAt: body.AcquiredAt,
 		Operator:   deref(body.Operator),
 		Standards:  make([]lab.Standard, 0, len(body.Standards)),
+		Sequence:   sequenceFrom(body.Sequence),
 	}
 	for _, st := range body.Standards {
 		in.Standards = append(in.Standards, lab.Standard{Analyte: string(st.Analyte), Level: string(st.Level),

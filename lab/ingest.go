@@ -123,6 +123,9 @@ func fitRun(m *Method, in *RunInput) ([]CurveInput, error) {
 			return nil, err
 		}
 	}
+	if err := checkSequence(in.Sequence, in.Samples); err != nil {
+		return nil, err
+	}
 	opts := m.Options()
 	curves := make([]CurveInput, 0, len(order))
 	for _, a := range order {

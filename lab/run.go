@@ -56,6 +56,8 @@ type RunInput struct {
 	Actor          string // who posted it, for the audit trail
 	Standards      []Standard
 	Samples        []Sample
+	// Sequence is the run's injection order, nil when it was not given.
+	Sequence *RunSequence
 }
 
 // CurveInput is one fitted curve of a run, fitted by Ingest before

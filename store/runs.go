@@ -15,14 +15,15 @@ import (
 
 // storedPayload is the normalised run kept in runs.payload.
 type storedPayload struct {
-	Method         string         `json:"method"`
-	MethodRevision int            `json:"method_revision"`
-	Instrument     string         `json:"instrument"`
-	AcquiredAt     time.Time      `json:"acquired_at"`
-	Operator       string         `json:"operator,omitempty"`
-	SourceFormat   string         `json:"source_format"`
-	Standards      []lab.Standard `json:"standards"`
-	Samples        []lab.Sample   `json:"samples"`
+	Method         string           `json:"method"`
+	MethodRevision int              `json:"method_revision"`
+	Instrument     string           `json:"instrument"`
+	AcquiredAt     time.Time        `json:"acquired_at"`
+	Operator       string           `json:"operator,omitempty"`
+	SourceFormat   string           `json:"source_format"`
+	Standards      []lab.Standard   `json:"standards"`
+	Samples        []lab.Sample     `json:"samples"`
+	Sequence       *lab.RunSequence `json:"sequence,omitempty"`
 }
 
 // preparedCurve is a curve ready to insert: ids assigned, report marshalled.
@@ -284,6 +285,14 @@ func runResults(in *lab.RunInput, curves []preparedCurve) ([]pendingResult, erro
 	for i := range curves {
 		byAnalyte[curves[i].in.Analyte] = &curves[i]
 	}
+	seqs := map[string]map[string]lab.SequenceOutcome{}
+	for i := range curves {
+		o, err := lab.SequenceOutcomes(in, &curves[i].in)
+		if err != nil {
+			return nil, err
+		}
+		seqs[curves[i].in.Analyte] = o
+	}
 	var out []pendingResult
 	for i, s := range in.Samples {
 		c, ok := byAnalyte[s.Analyte]
@@ -301,11 +310,16 @@ func runResults(in *lab.RunInput, curves []preparedCurve) ([]pendingResult, erro
 		if err != nil {
 			return nil, err
 		}
-		if o.Withheld != "" {
+		so := seqs[s.Analyte][s.ID]
+		switch {
+		case o.Withheld != "":
 			state, reason = lab.ReleaseWithheld, o.Withheld
+		case so.Withheld != "":
+			state, reason = lab.ReleaseWithheld, so.Withheld
+			q.Flags = append(q.Flags, lab.FlagSequenceWithheld)
 		}
 		out = append(out, pendingResult{position: i, curveID: c.id, unit: c.in.Unit, acquiredAt: at,
-			q: q, state: state, reason: reason, reported: o.Reported, isCheck: o.ISCheck})
+			q: q, state: state, reason: reason, reported: o.Reported, isCheck: o.ISCheck, sequence: so.Record})
 	}
 	return out, nil
 }

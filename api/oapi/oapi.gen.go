@@ -158,6 +158,60 @@ func (e HealthStatus) Valid() bool {
 	}
 }
 
+// Defines values for InjectionInputJudged.
+const (
+	Fail InjectionInputJudged = "fail"
+	Pass InjectionInputJudged = "pass"
+)
+
+// Valid indicates whether the value is a known member of the InjectionInputJudged enum.
+func (e InjectionInputJudged) Valid() bool {
+	switch e {
+	case Fail:
+		return true
+	case Pass:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for InjectionInputKind.
+const (
+	CalibrationBlank    InjectionInputKind = "calibration_blank"
+	CalibrationStandard InjectionInputKind = "calibration_standard"
+	Ccb                 InjectionInputKind = "ccb"
+	Ccv                 InjectionInputKind = "ccv"
+	Icv                 InjectionInputKind = "icv"
+	MethodBlank         InjectionInputKind = "method_blank"
+	QcSample            InjectionInputKind = "qc_sample"
+	Sample              InjectionInputKind = "sample"
+)
+
+// Valid indicates whether the value is a known member of the InjectionInputKind enum.
+func (e InjectionInputKind) Valid() bool {
+	switch e {
+	case CalibrationBlank:
+		return true
+	case CalibrationStandard:
+		return true
+	case Ccb:
+		return true
+	case Ccv:
+		return true
+	case Icv:
+		return true
+	case MethodBlank:
+		return true
+	case QcSample:
+		return true
+	case Sample:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for Model.
 const (
 	ModelLinear       Model = "linear"
@@ -323,6 +377,27 @@ func (e Scope) Valid() bool {
 	case ScopeResultsRead:
 		return true
 	case ScopeRunsWrite:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for SequenceRecordState.
+const (
+	Provisional SequenceRecordState = "provisional"
+	Reportable  SequenceRecordState = "reportable"
+	Withheld    SequenceRecordState = "withheld"
+)
+
+// Valid indicates whether the value is a known member of the SequenceRecordState enum.
+func (e SequenceRecordState) Valid() bool {
+	switch e {
+	case Provisional:
+		return true
+	case Reportable:
+		return true
+	case Withheld:
 		return true
 	default:
 		return false
@@ -942,6 +1017,32 @@ type ISCheck struct {
 // Identifier A name of an instrument, analyte, method, level or sample.
 type Identifier = string
 
+// InjectionInput defines model for InjectionInput.
+type InjectionInput struct {
+	// Analyte An ICV or CCV's analyte (a judged check without one applies to every analyte).
+	Analyte *Identifier `json:"analyte,omitempty"`
+
+	// ID A sample's id (for `sample` and `qc_sample`, a sample of the run), or the check's own name.
+	ID          Identifier `json:"id"`
+	IsResponses *Responses `json:"is_responses,omitempty"`
+
+	// Judged A verdict reached elsewhere (required for blanks).
+	Judged   *InjectionInputJudged `json:"judged,omitempty"`
+	Kind     InjectionInputKind    `json:"kind"`
+	Nominal  *float64              `json:"nominal,omitempty"`
+	Position int                   `json:"position"`
+
+	// Responses An ICV or CCV's readings, quantified against the run's curve of its analyte.
+	Responses *Responses `json:"responses,omitempty"`
+	Time      *time.Time `json:"time,omitempty"`
+}
+
+// InjectionInputJudged A verdict reached elsewhere (required for blanks).
+type InjectionInputJudged string
+
+// InjectionInputKind defines model for InjectionInput.Kind.
+type InjectionInputKind string
+
 // InstrumentPredictionRequest defines model for InstrumentPredictionRequest.
 type InstrumentPredictionRequest struct {
 	// Analyte A name of an instrument, analyte, method, level or sample.
@@ -1482,6 +1583,14 @@ type RunRequest struct {
 	Operator *Operator         `json:"operator,omitempty"`
 	Samples  *[]RunSampleInput `json:"samples,omitempty"`
 
+	// Sequence The run's injections in acquisition order. Each sample's result is bracketed by passing
+	// verifications (ICV/CCV recovery within 90–110 %, lab/sequence's default); when a CCV fails,
+	// every sample since the last passing check is withheld with the reason; a sample with no
+	// opening verification, or (when `complete`) no closing one, is withheld too. A CCV every
+	// 10 samples and a closing CCV are checked (common practice for EPA 200.8-type methods) and
+	// a breach is reported on each result's `sequence`.
+	Sequence *RunSequenceInput `json:"sequence,omitempty"`
+
 	// Standards One entry per analyte and level.
 	Standards []StandardInput `json:"standards"`
 }
@@ -1538,6 +1647,18 @@ type RunSampleInput struct {
 	SampleAmountUnit *Unit `json:"sample_amount_unit,omitempty"`
 }
 
+// RunSequenceInput The run's injections in acquisition order. Each sample's result is bracketed by passing
+// verifications (ICV/CCV recovery within 90–110 %, lab/sequence's default); when a CCV fails,
+// every sample since the last passing check is withheld with the reason; a sample with no
+// opening verification, or (when `complete`) no closing one, is withheld too. A CCV every
+// 10 samples and a closing CCV are checked (common practice for EPA 200.8-type methods) and
+// a breach is reported on each result's `sequence`.
+type RunSequenceInput struct {
+	// Complete No injection will follow; an unclosed bracket withholds its samples.
+	Complete   bool             `json:"complete"`
+	Injections []InjectionInput `json:"injections"`
+}
+
 // SampleResult A sample quantified against a curve when it was stored.
 type SampleResult struct {
 	AcquiredAt time.Time `json:"acquired_at"`
@@ -1583,11 +1704,14 @@ type SampleResult struct {
 	// reporting and detection limits, the highest standard and the IS check. Absent when the
 	// analyte has no reporting rules or no concentration. The laboratory's accreditation,
 	// regulator and SOP come first; a qualified person reviews every result.
-	Reported      *ReportedValue `json:"reported,omitempty"`
-	Responses     []float64      `json:"responses"`
-	RunID         UUID           `json:"run_id"`
-	SampleID      string         `json:"sample_id"`
-	StandardError *float64       `json:"standard_error"`
+	Reported  *ReportedValue `json:"reported,omitempty"`
+	Responses []float64      `json:"responses"`
+	RunID     UUID           `json:"run_id"`
+	SampleID  string         `json:"sample_id"`
+
+	// Sequence A result's place in its run's sequence.
+	Sequence      *SequenceRecord `json:"sequence,omitempty"`
+	StandardError *float64        `json:"standard_error"`
 
 	// StateChangedAt When the release state or its reason last changed.
 	StateChangedAt time.Time `json:"state_changed_at"`
@@ -1614,6 +1738,36 @@ type SamplesRequest struct {
 
 // Scope defines model for Scope.
 type Scope string
+
+// SequenceRecord A result's place in its run's sequence.
+type SequenceRecord struct {
+	Breaches []struct {
+		Detail   string `json:"detail"`
+		Position int    `json:"position"`
+		Rule     string `json:"rule"`
+	} `json:"breaches"`
+	Checks []struct {
+		Detail      string  `json:"detail"`
+		ID          string  `json:"id"`
+		Kind        string  `json:"kind"`
+		Passed      bool    `json:"passed"`
+		Position    int     `json:"position"`
+		RecoveryPct float64 `json:"recovery_pct"`
+	} `json:"checks"`
+
+	// Closing Position of the verification closing the bracket; 0 when none.
+	Closing int      `json:"closing"`
+	Notes   []string `json:"notes"`
+
+	// Opening Position of the verification opening the bracket; 0 when none.
+	Opening  int                 `json:"opening"`
+	Position int                 `json:"position"`
+	Reason   string              `json:"reason"`
+	State    SequenceRecordState `json:"state"`
+}
+
+// SequenceRecordState defines model for SequenceRecord.State.
+type SequenceRecordState string
 
 // SigmaBasis The σ of the ICH Q2(R2) limits LOD = 3.3·σ/S and LOQ = 10·σ/S.
 // `blank_sd`: the SD of the readings at nominal zero (also those
@@ -8033,386 +8187,400 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L3dcxtJdi/4r+RiPNFgTxECKaq7RYYjLkcfHnmkloZUd/vuQINKViWItAqZUGUVSUy3NrzrF9/Xuw+O",
-	"2Nf9eLcjNiY29q39urH+G3b+ko1zTmZWVqEAFCBS3eMrR3haLFTld57v8zvf9xI9m2slVGF6x9/3poKn",
-	"Isd/nokiX5xOCpHDX6kwSS7nhdSqd9w7F4lWqWGFZtdcFuxCTHQuWA6fSHU56EW9XLwrZS7S3nGRlyLq",
-	"mWQqZhyamkklZ+WsdzyMesViLnrHPakKcSny3vv376PenOd8Jgo7jEdlfiWePV4ew+upYAn8+JlhMoUu",
-	"JTye82Lai3qKz7DhdO1Q/ioXk95x7xf3qlW4R7+ae9988+xxD8bzLBWzuS6ESha/FYvlgZyyJJNCFfvJ",
-	"VBuh2FuxYH3O4HsmDePsUuuUJVMtE7HHiikv2Iy/FfALLJgU6UjBEIUpmOETccKMEKyYCqbnIufQy2eG",
-	"BX0ORsrNlvarmm8w1n0YbG3d+c1zoS6Lae/44PCrCPbB/w2rXhQihzb/8PvT/f+e7/9xuP9wMD7ef/P9",
-	"QXRw+NX7v+r57TJFLtUlLY4yRV7OhCrad0j635lMhSrkRIo8YtywuTaFSNm1LKZMFoblpTKrdrHqZNfd",
-	"fOY7x2GflWrVmcpLdbcn6j18b+ZaGYEn/Nc8PaPth78SrQq7mnw+z2SCB+DePNcXmZj96u8NDPT7jj2+",
-	"oq+o0/pUX/BsovOZSJlZqILfROw61+qSwRYznTPOrnhWCqbLwsiUziM1e8xm7tuR+tvzl19HjDM6Eux6",
-	"KnLBOFPl7ELk7EJkWl2aiHHFSvVW6WvFJlJkKXxiTxzT+UjlXF0KdiV1xguBv74rRb5gnhbQvUm1MEzp",
-	"gsHSLOAevI96j7SaZDL5qKuHB0UYXeYJ0B9T8EKwic4vJFBF/JEudJ8TkWK5uJLiWqSMZ7ng6SJifKTo",
-	"J7gCuiwYZxNZRIz7j+EHWng+E0xWdxtpjClkljGpRjD9y2mxZ9fjKQ4jFepjL0ih3wrFMp68NUxcwfaZ",
-	"RM8FyyTedKlYfLPvrs4+/mbiQQ+pCJwEnj3Jc51/zGG7jpmAngcMpnGh0wUzfGGYVtmCjXqy9tKox7hK",
-	"a5sMxOJ91PtaF091qdKPve5AmVJ/HKtLIm6kKXBkr/gi0zx9rfVznl+Kjz1AXFFxkwhhb4cR+ZXIPzMs",
-	"0WoiL8tcpCyTM0mjPRf5lUzEN4pfcZnxi+yjDzjlBb/gRrCEK1jJC9hrnkxFypS+jvwcZCKAxZtpWRRA",
-	"/lJ9rSIkaP0J0tDrXBbI9KVBVshVYmdvoMXUnrELkfDSCOSDvm9pRgoIK1fpxYJ4flM82/fyWdtk7dv3",
-	"AkkO5/ta6xdcLSzTMT8JmfjM+NuTA+2UhukrkeMK2JNwW9P9RvGymOpc/lF81Kv5Qhoj1WVUscvIM0Gd",
-	"A0PQb0XKLgTPRU6r0pj0d999t39aFlOhChilWBZY4l/j1zGxCq5YjDQqZrwocnlRFoL1z54+Yl98+WC4",
-	"t14sb8p2tHTzXCfCGLiET1Qhi8XHXMHvRJbtWylFqnlZkBRwkQv+FsXnMhNMT8LreGJXwMRIFg2DaztS",
-	"ejIRKoUriuJHRcHLTFi2+Y0y5Xyu80KkL0Qq+Wtcj48tUuCV+MywR9TrPowCLgdQIa0aagHjSSLmhRmg",
-	"TGv7gCGc4nMgNs9g2XDsaSrhG569yqGBQgrTO57wzIjmSKqvWTHNhZnqLDUnuJI4hkxMCpALWYFqDAxJ",
-	"qEupBKopE15mBeubKQl7WUasXyt8cSaKqU7xKM6DcXzfu+DJ23HCs2Sc6etxoTORwwjGcxLsxE2SlUZe",
-	"iRdOe6TzC6eDF73jXqpLYBQRqDn0wsFwGLUpmySbwpZXfc6kGs+5MeNJzhNahu/Xtt255Y8zk6meaZOI",
-	"lJtCJrJYjHk2n248jaf40vuIJBzY9C2/A1lvrCfjidz2yxlXKS903qJPP5oKkCCvQZtmEy6zMqf/0lG7",
-	"Enkqk+IE/9DFVOSGcVA60itpdL5Ava0QM7NpLNjP13wmaDw3z+ijg2p9eZ7zRS/qlUq+K4X9HXbLTkBk",
-	"W8/6Zpybuz0KcJQzcSUyY5V+evVB+N3hsuWFPszH5l3Jc2KUH3D+dVlkUuTjROu3Zpze2WRdP6YoUcH/",
-	"o7i7vvJSmS33+0rkcmI5xjIlqB/7H375+AfQuoNPSPjjecr6zx59e+/Ro2/32IwvGNBWxi+5VKB8FGak",
-	"lJ5J0FBQZx+wx5YKHw4jxkESYt+csyevTtn5d/tfHX3BXiAVZl8Nh8PHI5XwTF5YjhJ2T1cs4xc6x6v6",
-	"mbHkmxlRGOiY6WtrjbqDFX/vn+iLvxdJAQtasaZXOpPJYkvO9gS1Us/UgC9NdJ6IyPEtU3GsrVnU8lQ/",
-	"nOFsw1g6fL2aTXT4uIVJdPiqlUV0+K7GILan5zUK3kKuO42gRqy7fFEjvTtR2C6UdIuvGnSxw5d1Ktfh",
-	"g21oHMi4ROeyTIMxDLTkVopnWD8NiNhq8oWi5MZhvg81n9+HG9U4Gm0HduW9WX0do7XEYj0haJ6T+klc",
-	"voe1PWvf+uVjFF6wtXv4po0Ku+PRdIQYeamwIdAdcIEHvbU8YDh4EPKAwXA4PGg5Y6eKZ4tCbKT2dXpN",
-	"FvvufoGo967kqtj0iR3M7/Dd9ygdbvzmG3ineQpxfPb71mUOO9pShVOM09fgy3D2Sy9OgPqbC1B2QSUG",
-	"JdgM2HfWhLD8euHcIiNV3U9ow/DZPBOGJTzPFyyWZuw9GzG7EOg4iKtHZDgjo7cEVlsUIrWa4Ui59xiK",
-	"Iux0fHPvdCyNF3Tg22pSiVaJUAW+qyIcDbfjsarDs/OgzUwKU/NlXEuV6mvWn8NdUoUzIzhZSOfmMzYT",
-	"XLFn58y1cuLEhJH6Yvjnf/ifDw4fsF9GLNGzmVbs2aNX+y/O2RzvMcgUk1zP2EzMdL7Yw/lm/PJS0OqD",
-	"vWYqspRMzrQX4E8hp4s07Ob/+Z+G7N/+maUyK5Ey/ts/swnJeDorZ4L925/cdPlMl6qAB2m+YI6OgHBT",
-	"+LaluhwpOGkRy8FGbYfxruQZnH47jpqsx5MkF6ks7Arn4rLM4Df88PzlK5i3GKmJzE1xwnjVFpuL3Ghl",
-	"XR7OF5ALU2YFSYv1e5qKRM54ZpYpyhkMFbzMaECdcbVg7mU0pwqewsZVZKdgZE42g5DKHLQLmgFnTkUh",
-	"cNXGaHxcof2s0w7crRm7G7Id5ZFmTCdyPJWX09UyRyg9b1JYqjaBBd1Kk26P843S2O/cm+cCiZk/hjuv",
-	"cNVCd4ob9YKzMbZnY/mcOX3pPutfT4VisTtlMXrwL4xQxV79SIV866AlkKGNnpepLJ5ciQ7UvH5BKg2h",
-	"YR8Fa+g1NyzVSkRMDC4HLM5LNUhywQuRxhGLkdoOiNRWf/P5PNdX4ZNcwDBFGg+W/fwRjEC3xIGAtO0o",
-	"J3n/0EDLoaH2dhobzwuxX8iZaHs3FQWXWbsQOed5IZMy47mJmFRJVqJxlzs3a47+BW60GrSGLYRsmBc9",
-	"N8Go52Uw2/ubVfv4XF9uuYviykXZdFJngtOypM80ZmBbbhvrI47cw6w4PMQggDDjQVeptTUfW9MyCnKO",
-	"AQfOOs8Hk1wWIpecmN28vMikATfZZSlT+LjFhlDnKyNVZyzWwgD8BczLbJ6LRKQCm6LNZReLFm4zUj4I",
-	"KRPcCBsk41Z66XTNpHIGv2VtEVXJLbcXtrAsRLq80k/hdYaEBUUMaJwlusxSZp2L7ltcLcViUAhEisQH",
-	"+8KVielIxuSbvp4ugqN9oXUmuKpfm6U5e8q7fKECmwgeBRgRaB8oqJwwVWZZcwZTDkdFYbTINf678BNp",
-	"F/uhFXLnknFovdLfPK6imGIciHMi2CgqFA1oREC1U1G3EqOF+FoaYScWmomXF6+LylCzM9BOBasdNEb+",
-	"+Nap5MK7n+jWFZXrBMQqvE6tFNTAvQE1dMU+YhSZewe2Zia4wTuLomW4lR+8Ye36TDVCd+L8MkXVLakr",
-	"oHap1pLdat3bQvDgR8eKAto1RzPhMYsrlR94Hun8cTRScaDvwy9NVR+eeW0d6JTUCp55/RwbyQX8ciW8",
-	"9DcmP2zEYq+u41egE5U8G4PKDg+sXm6wlZlWutBKJvBLmstJEQ9Y8JT1/ZoBEbQHZo/ZTTCkR5F+VWgg",
-	"LHBukiJbMN8IudlRA9L5W1T/IPZq4DrEsAO3S4wXTKpLYYpj/ESJax9zaTI9FzXlDNUlVA4ee68sBi5V",
-	"MYDwa6XDHQ7ZTJuCAYlXxUg5qYT6MFEVAPWdMMUlqKIkppDKyvpGiJGK/+bJa3bv6uBekQuVmnhvwJ7V",
-	"rjorVSaMCUlHJg1asBk3I+UXNbJ3ET72Tk68KhOQKUC4UexgyBrjHCmMtIlcP9RAtVV9JOr01Gl6rEEw",
-	"96wZXZWzFQaqummqxSgVmpXsQe1FvdCOtOKUhjYlfCs4o5XpCEfiThHcVDguwUW1JCrq3ezDLPaveI4e",
-	"eJgOXt0XEG9qp0QP3Lzwr+c8efty8lQW7sFvlueHz3/Nk7ePanPEx2fnfp70t53suZ3rEztV/PFZMF/7",
-	"Nk36jOaMz15WE6fxBrPHB49pCSgGsbJGtNEn56BpmC2sjl5diVLJop0W19Q0/38bdCaIjZQoPbWwi2u9",
-	"byRYAhL/Fhnt4PbiibjimYnYcPAAyMlw8PDhw432vIcPH9Yseg/aR1XkOnsOzMFsadk6n4rrKc9RGoVG",
-	"KFrIsP6z85fsy6++HO4f7jkm5+MqIZ4qk0oMWnham6qFSnhH+7f9ItPXHT/A/RcdX77muQKVd4sBuU+6",
-	"jqjBxe3w6u00BlKbdVRbtFbOTVt1VmatvLsi7iAO9f2fomA8G0TsUSbVgD2aitmAHX7J+gcPvzrYY0cP",
-	"7+8ds/hg/9DEI5RDyXZ2IRZapezHfzkEPtS34947gVfvmxgjWPw799n54xMWH0IjrLjWwPqUEUkJlMO9",
-	"5hkZtojn7YTFZ/tH9A0LPomg+ZHiF/pKsF/h+y7UCAVRjIi+Zn/+p/96SD0f7R+YmE10mbPlnkfKd30Q",
-	"dn0wvIlZIVTtExtgg2+jlVNPPFeuMxdYsl7Ug+XoRb1D+gum04t6MB74bXjTkbTDph5QC/Cv++5fh/7Z",
-	"2ZH719GBfw/ah5NR5qbNsPByzt+VAsKcjSiAzRqdsz5c4y+Oyry62nOgHOrS2WZcPsODg8NO+Q3j/Te/",
-	"+qs2KRuzTra1uTuDNhlU2HdOXcoFh0Gaus5nXwZzSZaB9JdoMZnIRApVoGhYZ9ImJiUw0Vc8lyDbxhj2",
-	"ImbzYhGR5Ec32pARRgloHbrB94DsRSy2ehGqljEE1cSRbRejblC5HClQLlsMtTwhMjHmRatWo5ynAPVB",
-	"93adZayz+PDKzbP0WxIYMtZqZ+49+AbntJ0Duc15HO7M8sSfKTbTqcj2xbuSnJg6T0V+zIDj8Jz9/mIY",
-	"sYuDN5F9MNa5vJSK/R6fvSt5mnPQ1ex7Ebs4fFMLYurmq7bWjPttw18tBDxqYf2wiRckqaN53SmmXiTo",
-	"5HKNetVRbevX/cZmvMjljes4XOuImR//tf93/9//+Q/f/d3en//H//vH/wu8F9cGxKbgPVrv2pLd2tqt",
-	"X1gys66/DjbHg3t/FzrOCr3VzUgnLc4RK7KyVFzmAtxbEzbJhUj1LGIKeAybByaEwNtB0ZrjK5GbVnH1",
-	"deAIg/NM7xNZ8aohzA3zVcjsjO/fOxgMB8N2E7KNENJq0zV84l98H/XAZ2baTGpJAYZ5jEKlgdDwrAlI",
-	"aWcB6hwO+FQWTzN+2Xb/p4JfSWEKUsk2NYRKzvmU52ggkmm3tLAozHJrNd75wJKG70KaQqqkoPtrnEox",
-	"IT1ivdsr8xL42gnRW3AbUHtuHR79NAYT7epDRS8x91L7/QDeXhv6QdvQkeRuGvkLfOl91FNt18dy5WrB",
-	"WB8PaYpOaeEU9FKhfr5xMedatvIHCjrzznQrDURuujpnrteIXea6nENSwMKSY6mIjxpZcZbuEa6wtK9g",
-	"WG2nuhaJ1Ay8h4QykdapLHCCQuSgyOJg+iXpsjaOp8bd9na0AKMxatO8zvCl94GpwqRr6KNf+lRcSRq6",
-	"6S/u3exFTmj+f//Xa/bXTLFrnDczCc/ErhNAH8XGGdBb9n24C2ONJJ5n2ctJ7/j3XUjGm6YE+ioXBndK",
-	"Ma6YJ7j+vtXiL8hzmAt7DMngTAFg4+5EqyGktqSKu8WnF1awefQjLp3tD2XepuBF2e2WnNOrQThPfRrf",
-	"PPrmBUt0pVatiETxBpwlAunknXEnyvWtfdtTMMvONn5nXwM7AB7mccJVKkG4WEma/Btg1U10LqzhNeZl",
-	"oWMfroLKxA0QaGwY/a2ZfCtYH3UQOHVkD4UlCsSBFR/vdSZjRI0euVG20TI3V63AFdrKf36jr23nlC+A",
-	"lzy14ouCk5ZJIzDaxJQz+I9yuAZxQGfahRs/q+53+Dv/yfJFfu2SrQUrYUx9NCAowSzEAAUp0PbQLca8",
-	"IWRT4WjGaAIX6a2PyvadTLU2wiD5L6bCVLpuxHhmdOUytJyfzgBXaAw5sZEVzhtVHUSrKV8IOo9pY1Z+",
-	"urc+r2Co3Lwlxoad/1HkejzlKs3sJi8fLnilTgwM5fnZ8Dd2LXIwacwL6yzPdVomcI2kmkglC+HO5wlp",
-	"9W5dlGA810ZsDmUgcAIi4F5aW5bNojqiglO7Le1zslV4qttXv43GOJG97U42l7GhWS9zk5oOWWf3qBPV",
-	"3RvQgXeaBEqvF828RcBLvk7gqOir5xpRzdxRU/YCa8SSMtVq/0QME/VU58lmo1LD5LLCXz/T5E/DQ4p6",
-	"UHdl8oIb2RoQsrDOdBegWaVHSAXuwtS0Er+dTDPOwLaZM5ezGc8XpELOZS7Man1bghbEr4giJQLE6OpG",
-	"Q/oK+SkYvxQNH4FWYuUCrpD5AtWMm2IcxlB3p0vfhl+1k6aMo1M/bB+shjr37IkXcd2v3+bpWLLz4w64",
-	"0xBRGFSwwm3TCvZ65Tl/Ls228W07H6AtbHuNo9QUIJS4KcbJCms0Wamd5Aevsnl1hKwOAauFjwebj0zb",
-	"VsAehKPostak221npn6pxJIyWqHwpJJfKm0KmRiI6a3+xMAwf8Rk0YCZYH2lyRykc2DludYFigXgkt4P",
-	"XNL2BfKGDvEV55YmFWFdbjC00aav1tyvOCnsl/is13l21OiSpm+3k+kT0ywkIT60f7SxY2cWaI8uIr1t",
-	"x6a9IavVzJTzy13H7EMMcC/bs4AOhsMf/9RvbCraK2tLvXev9ufO+jjJDDvPh6S3jvseJN2Mw57bUWey",
-	"BXMfGEJwwQ92nCnJW6uMOU1TB6o/J2xI99kdtdsIA6Oz1bw3wVL6ofpDHGzTijUMDubS7YqWCETrOQwu",
-	"1EqCeu4tBk1bEkaeIs7TgJ1WgVDoR5sTtsSYbD/xiY9DpiwXRVvq3K/1t3tRz4UT4bApCrtrXE015lfU",
-	"6plrNPjptGo/eHrmu/KTt+xx2+D0mlPwFjx9Na9Kt/bAkynSceXwW45Tr0xP+JJ1F0jyx0J8Yhhdp3Mf",
-	"PVa3Uyz13BQkbs3ev52t/TaN5RtSVDfTzG0tiLsb6ZatbDuayaxW39GE8PHU7lC/bVFR6+d+jcraRvEe",
-	"29SyNp8S/cImmBeBcHsSFE3EEpDKKrus78MZ/9qSQ4rBCfLW9k7YAfEYMvYMdgYL6BDu9iT0MW4hE28y",
-	"nA9aQiFsQswHpbisdxk54ZxiSGgkjlObGlXaglyvlvxyQehGoi15fQWPr75pO2BLHiewtYwpLwc62ahY",
-	"V6+2/FTzm3RCcg1nEH4fGIhsj42xBvlB7VfJH7xuGtmKLemeLljbq2X9zp0cy/Gwg4gd7EMAVdrqUzzx",
-	"WZrLXzav76qEwfY0uOVjs3YBAyjULZawukidrAGN7ar5kR7YOa3ODmoe426Wntfipmix8JDVTVAUvkV3",
-	"yaV6CyaeC11MmVAAvuVWsbKoA4CCoYh6CLyEf9sIAJ4L+6mX6mt36XbG69zn0FvQUWPHmxerbe9d5EVL",
-	"aCjwHxvmwZtBHiaM8mBxijYFZYM0xsRE42MKDcVnDIHM2Exj9g1XbMqzSZW+WPDMOYBtYkE97iOGGNKJ",
-	"uB77y2fGE52PzWEMcaj3zB8OyRuDLhtyeo0U9YzDhoQpSiTwi4fDqJkoMVGl6iGuh262TrIX9VqH1VGJ",
-	"sMv/2DaN4SvfuYbtj0/F9Zlv/qnOzw9RbfiN4Fkx3fKuVgKfm5V+SwckXXQcMvX78rc9N4Qz+rh5+mxX",
-	"bYfu2Xm3JL/miaSc+wBVYT8wplmwgTApZi2gwLJcUb0+hpc7mh3W5PytTyfvlsa+1OjafPKlNtflyOUi",
-	"gYSkxRbNbWuS8Vl4G3xnSzOvmSyaG9MYerUmwZIHeW92h/xwWo9kxeLbMkhsrjUidDg1InJxCJGlIJEL",
-	"48ztSW1ERn9x1Ckw+k0TA34YfXH/fWuodIUA/yoXQIt3ZuKBUaC7JLTBQUZQINZUY91ZTBKNPgEw36Zw",
-	"001wr4fUrlVcqzfhMOKedBdUqiU9xy+bUIUbZJVmprvXON04Wo+hDfPdkjRWE/WBwlWwT2jHpcD4+IJg",
-	"SKok54jFmb62Ye5wh2IfuN7iEqCv24nK6mSZ7obxLtBm+nqnXppCMebQ2Lwap1i5+bVt0HNeCDoO3dBd",
-	"dwnid0g63PgEYkrlhxuBCZvySqS7XZ6d7nkaGCvWfeWNGp1scU2tKijLsD58z73Yagqq7lnVYutGVpHC",
-	"292119NQpHU2goznl5j+DS22ybUt4sYOvi3jBlwfEzgWQq2REDhIzMWcY/sCzzIX+up+3wXCreldoFG1",
-	"rvIuaYaPHSCQg0lShXeD25TDiNIQmsF/BpHu5wWLk1wWMuHZGI1iMdSCcOdhb10efmOLXCvJ+hxTyH88",
-	"OPjq6P7+IXPfuBoeznFdNPNPb8bJrl7R2uR2GY5bi4gtdh7FKowYiMcqpmJBMVducdH3fD1dwIoPVkDO",
-	"NGGgVs/K2j0YfQTDpPnBqu4KgJHpFu/2s0e/Yb87ZH5wdP4idn9w/8c//fs/3jvfubN3KztrO/EROxh+",
-	"UIdGXs54u7jmT8a//yPeK69L4ZWqRwrG2M4YA1dAfOiYjhR81d0Kcg4f/Rq/aY/O+fd/tCGaCgxoNjBy",
-	"rxnaWF1wSqpaFSrbv57KZEot2jtCMeznAHS5LDmkPdrGpfsYraIby4d8LejGC++F2krEcPgbG0GOmni+",
-	"lXiwBVISfdCeuRfK6V0CNzandCGKg7XGg3xkP9lCebB9XCw6I2rZT+q9ryBhQXNLfoVGWCkM/1Jeifam",
-	"AHYUj+mYX4rxVJdt8f1fezZmT3SqbVTQXOa7htxsmdxjMWGWJuA87TSysVTjia7bAmqWiK7e1F08hsFX",
-	"Yz3vFO3mv35p31+BtxP4F8Ot2RTG60bRCJX1ty8Kr/HqtWw/Js1w2erEryYyOwQOks2jO6Wgjjbiqblm",
-	"V491RwPHDnSRVLwPJIs1k8EG70adZHbjkqGR4020AlxxOHj4YNBCojY7ITqSIhD6oN6cdVOHPi5Xhc0U",
-	"gJ3mDEFgACLR5hY81F99+dXRxtoMO9G17grsGoLXjqbGMfIFFEhaH4JvhJqexoUwgUvqQoSZY86M5hG6",
-	"8bDvtSOq/UTE0l6bdorZRhj99Wq99G7fGtWXKOUxZgv21+xiyH7FLg5+/NPNCYtruZD2d/uTT/iPR6r+",
-	"Hfz38Mc/3fz4r4Rm89XRF1/sHzaQoajlXmT/YbvoRT3fbkcfCs7puWst+OulaxGf/a5q9n3Ue4mlh9pi",
-	"pL+bapZbZ1Zlnz5Bc7U/o6766YKygxBvMP5PccNG3bU6ad1I/Z/QSn1w+GW7mfpDjdN/mRbfdXbecEUq",
-	"j8pu9vrbyQlZB1ZFZuQ6VgWoSV2xKJB5dI9Ko/d3ik2jT7cPRCMc1l1Oyhl+2ab/rIiTa8s/GDdMl/hp",
-	"YyGak2vIjm4GG1IXlga+9U1cZwer5wKQKABEKa3HtC1hmiJvI0zTKnvB6lvOUAVPrrVDDKgBKLJ+zGcX",
-	"8rLUpRnD9/GuKfChpbvDyV6BkBEj0tQYxwZoQghJVf0pboqcz6ncLvxNb2ea4CzdX+/gJyUuMZQa/61x",
-	"biBZVC3Xpz1SfQuKFSZCti4ZqJ41U+AxqqUjFQAl7kUsLpV1h4ydZwnCIs4RQ8V5KuzZq5iLrUmgNElD",
-	"6FcaqVjpYuyMW7ANMQZ7sJioLR3IeG8TenB71O/SazJwpa2V4tx7wTfjKgC41bZZedlAi9cXBZfK5zPH",
-	"EymyTOTt2cozwdV4Sze6s9W3WQDgHTBa+AiUIOmVU9R+uhnRowFKuewCn89zfSNn0L6poQq0+hld5St3",
-	"nYKEP7jiwhTY1G1kPMi0Jd2hHWPzCnMZXIqsX9TmngRUYPlErKepVmzYjqb+JXnX1vvUXIXN5RSOp4/Y",
-	"w6MHXzJbuZOR1dMMWupRtDsVCG4frbpYKt2i00qffx8hz5gLbeMuli7eKpCMpxqjqnkmbaHTyFbbbClb",
-	"aoG/O4oIONWn8HEr2VJVgtrKaqRszgmQpyUGF1+wYtW6cqbx3+1bsXv/GfCbQrN3pS4sKnpVioazB8Ph",
-	"Stzr0rT385vXr18xegExOmpBqg9qgKRHw1bsnkIWbdiU51OdF8xQXoyjMu78QCutQ6UHyxE835w9c7rQ",
-	"wvlsw8Yc7S5zdYw8660Qc5Ef23eO7QmJB72merRevMNf3RyD5IE1Zv/awTn+vuMFee0gzaUr0jtYGfUu",
-	"8vbvG0f+mHH2t+cvv2av6CPgepoQ6jQU0Y/vZVIJc29UDof3E4X/EfavRGflzD6KRwru5qPzb1GKi+kN",
-	"aX89tp/zmbCvM6rfPec5n4lC5CQQrF9nN6+1K1uri7KD1z+spOCrseCpp/oNmKa/vlivLZVcVettCa8h",
-	"4THrQKrLrPBzQhpnGWu6w7fSjG3B1x0+hiCDcTf8qObHbdVazlxLW+zQd6F4G1XpxzZW255cF65N5mCs",
-	"Ka/2ET2kqvfJ2UXG1dsQnCxIuC4E4pTvNZSY3JaKVi2BpR8SE3XrcU5tF4Pw2ITZNqEFjHkt6g+IVvtY",
-	"fj+mG48PtMoWMbueyowUj6DYPvO19plUI+WiO1kfG4HLZSB0+8HwvkVHCkrSxw0jXdW5FfKw4y0Mc7AY",
-	"39nv3d8vsYkq+cOsYro8dZK4Yf2pLty8zB7L+OW+re9X4JukMF1qVmgXz4I1XvgOcHM2QrzayJrp6osj",
-	"P/sWgK5w5boulO9offQ32XtXnDmsFQO2m7YzBGmz6FrjWXhoyFRQs5KfwPmCtkil1BgFWWAtBV8sAKgz",
-	"ZSxUcRWUv+eAPKrAuxMWuwpx8Ui5+12lHLs84ci2ELFSTWRBUSg6Z6aci9yI1Ma88JHq1O3ATcOlt/hi",
-	"MzKZ1o94sDaUbm0nD2Z1O/LO24g9vqo1aB+ehe3aZ9/55nEHG2duO+Ih1bg0a/wjdEXwesB+Kn3d7uXI",
-	"+OXYiESrdIVfasJzOhDsQkylhQSf5xIEy4hxn5yMKCKYzlkPISnVWwXFltvh99eXTXN5P8uJPLJgl6Ig",
-	"kxfOtF+qHEQHWPEIqEVVLgRNMBEyIE8pI8LN4nsr1APcm+WuX2nrlpOK7e87GryPhLLMM8s4D2pivA1c",
-	"75pp5vqO3Ba3X3+yMX3rQti2FMYoaIlb/QW2UxXmmEo39kuFSjXcQBncXlvjYa9bbceRai/uGDGE1coL",
-	"kTqpolKiamUeo3qdxzA3ZaSqb+ClRoCZiWrSSq14KPzw7JwO6oCdBgcV27VWZG9OrZcatRAxjajw19vV",
-	"CXMFKNmH15+syuvdkhuDIr3GK5PUae8w+3TiE4m7pflsrlK59JU3p7WgJkDndY/DDvV1l9rV85Cl/9s/",
-	"96Lev/1pmRuszeN3V3LbuGDr4nVRcNaLoeedEpTr5S07Cj1Likiz1U6lL9vSnMqs88tVOkSXt20hjqVV",
-	"L8RN+3as3KebYcc+b4bjbs6om2Gvers6o8171XaL/KL5fXfrYqdmp768JW1RkcFh2ODQCv2ny8nYQfkr",
-	"l13dt0EVzrViTdWk8iU6z2koe9tUAqrnYu8v/7a0JWehQbaJd1NZ8h2g5wdBUfsl2s6djYMss92qpq5x",
-	"T28D0pDwVhExKLSK1TrI0z7gaa2oKgIC+b9DITxGrZSee8SJdn9NhyyNzfH6WzrA30qVhlScZppa+6EY",
-	"J1OwcXSX8f0uPvINBQ9RA3vkmgQbISwd+BSN0826RaLVNLoVUK/wm9V9rAFlglthi+a2QCduQKIgjcmP",
-	"tPv4HMGy++K3Varii6PW0g1bYuvgoRyv8E4a8W69bI6WJwGZX1LB6iCILdg+SKLCsrM1ErV63N1oP4zI",
-	"IlHi+XOXr7nIS+cjBO7wKxrOP8DnWRvtULtpK2h9mRVPhUg/AsjlliWDQ1rZVsaCm/FM5yvin9ciYL7i",
-	"xoCWGhuJlYcs4HMNCxPzH1y25vp9tvOqdxoMcDO/rclcW26ENRiGEWdfbPCoRD20qzc+C51JK2aKnbmv",
-	"2+fi6gVsqXza8MxUJBbbf+5BjBLRtBbBq23JZR3qegcVtTEh4RbqeieySx0YWpnH7u01poyva9C39ayG",
-	"7ZBY/dgCgrIB+qcxzIBlWsufh/XrzCuhwVP/Mf19Zpt4Xz3YJYzxNhb/Q/FjAjSbQrtiqj5EmzL2bYRZ",
-	"VaZssHqvWnelzMS3UmcVHPMWBMIyiBUGdpvnItWVzq6ceUe2FrDowqOXtUWcw4oq4o7wQg0/ZmsbRgyO",
-	"tv8pLJHbbq10+t+GKFZfs3ELFA2vX+Ek/HdRsKjt26W2RmLJSwUsqSqldQu4lDvZe7pUAXNF8bYt/LVD",
-	"rthcm0KkbEUZki1xs89KRbUQW06qm8GKWN0CmBF8U1sANzoVQqL+PVHaxFx1rjoJaPozXkBsQC+q/n50",
-	"/i3SyF1hOLuHM1Xhedt+swVwp14Zb/8BPG/7oPSzMohGb3HioWG4e3OuJtDGRKzt8DRr2Jd+5fw5XZ2T",
-	"Fs6hWpyowmVfL42Wyum0HxP2ftnQhL+xucgdKFB368yaW971JrVtXfcF7FRv9Rbggu4Yl3bbqP/16CFL",
-	"gK8rVm/XbMQdGOTHpJYh8Vv3lU9K+hDK5vMsm9bJteRu+RIKVeSL8BKitwrzVTpfR0cfW8b0YLv8H087",
-	"11DKakIrj5dPTLlj6rZtCkwYtN8qS29hLVsSZK25qGNSS8Uib89Kna4EaD5Yxfq7QPylK8yYgTdgmxJ8",
-	"mzl4Gx5SMLu1y7kTxNXHAphK88XYueRbULTzxf4MExcDv33h3OEINg1O/X0LOorIJLvCY28IAsHogjFF",
-	"F8BAt+iia7Pevbf2qsE7O+QOSDOunc+uzgD3SbsnwEE++tiGz6pkL1CsMIjW12u1BnHU8uHX2I8obsPn",
-	"tWXkUGUh0MZGZ15h99LajkkS3s5NsSItoef4HLyOBoMvaMNwRnHtU9zDeA9jhQn5asZTwco5HNs43O34",
-	"hCCGdc6UkMWUDB+3dKyWx9TtXH0IFluNlewGCutBk4Iwm8qqRVWTrm/bYrE2CXd9puRpa35UPdbwkl9R",
-	"NW0MdaJUOcxe2jm9cZfyHnUrSLtNwzL6Dyqg6817y+lkLAFri6+Su5o1v17ONf2g+gkdufqKNNDXGGbo",
-	"csMYvoXE69XL89fs3tXBPezX3Ptepu/vVW+aOPIJky6Bsl8dC6rPqXQBUQyE5reH/uyl9EpIB50KV0I+",
-	"F5MA24oiC05Y3Mhw81Gnix0TMdu8JXCxAbY5xXBLnAr6m9HDacm07OrObIVJXsvOLNz07SWF3npW53pL",
-	"VD0u+C4c4XQTNn8Xxmzentx6y671pVzWXeDywkCLDeZlWk0b26BzRqHpsFUupBhb6W54voUy2BHFjbO4",
-	"9hMGy9SWx0L++txuhP2VqmO52619/HXtN9RIuqXjbpPo27y3YepvPaChcb9adn87TK1QnvlLVN3X3a9W",
-	"kJOttHXq3exmONvWxtTEa74zRJfzRM9FLZumVOa4ykPCpTmGU+5ts8dVFbp0JlVH9wt2dFYq43KU6AF1",
-	"cEbt4yM0jxpflA6fnVJHMN4KXLOVaf/7PzoyQ6ik/bPDPRubzp6/fMz+uoJARRLy/OXv2F9XIKUAZAER",
-	"lVC1/RibOX9cRTW48iWFr0aKKXh9BI8owAk9Uq6uSZXJN8Gsu5gS+mwVDmze3PvzP/0vBHDsGoe2MRye",
-	"3l5O84vcoOA/VVV9OQNp0diMvr6AQNSRKnQTEdRlhtCXIt07qVeqP25+EI1UtQo8rPUDpNGO4MQVd0e5",
-	"zWaI7h2zai2DhKS8VBjk36xaAiwI66zgR0EQqchgXZfWr55bBP33op7rkIorhO83aoF3PLT+tJ1S+9WD",
-	"X0NP52nt2XPskiC667+c2a7PKVTxPBABbws9aQdY7nWFve7Cslfx1U0FP1cQq5qR+yMY+JYWdUP4Q/Dy",
-	"fyMWqMjrZxpoz7U0ZJTaqUDZB4N9fOgBe22TGRphNLkQDJIBAqyOE5uOVOQ6A0k550khcg/kXvCLiGVS",
-	"WVUROE3C81zyS6CuRZmrBoDdoePpKxDs/jAa3QyH+/C/X8H//Br+5xH8zxN4ePB0NLr58umbX7UC2b2G",
-	"SI8dHc47mF66a0Qr04EMcP0tJEN4vU0kxBiXdknBiCQXxYCdT/W1Ysg34aycMFmwhCtrqMDUaLTMddQt",
-	"qMfIJRXZiWwsrIlbtJts6RaxG3kJ71xLpJ0mvHtArZEZwuVVsUInzOBaWVsI2aksgeFlKgtW5Fxmgw/Z",
-	"wErKPVon4qJm9q4U9meMuG/P6rIDaV3zXKjbZMGQkQp3fiNCLfT7a/fyjiFkG0oBZ76CRYeIPVvuAi6k",
-	"LoRZAWNUaAboMrDjM6nSoNaoNKyAOQEGRZDkzdyCRC4AEjIBqDAfGi23rJPskVU6LfAr/3atamqn40gN",
-	"uEKPS0QlL1XiaGmDsOSlqLjptVSpvmaQeR6UEDyIhsOhWxGC9s+oQKLOUhD66QUsQwFr3B6QeeUiVbcJ",
-	"XAgDXDe6YdsLD1ebEJRA9SffH7zaAMMlc2dsg7ZdvyMfEIz7QYG1q+vpbbTEqbaSuFHPtBwaUvQrESsV",
-	"V5JMYn3F/vxP/5UdrEJt8Tds1+oaIhMrPNEOMtD14K8wdJ6ArtuBI9qyd6h9qVpEb9j3yv1/FV54q1ZC",
-	"Zxkwi9WOGH9EGbd0aaKzTF+bMH7UNYISLshsDQWxXkc7011VxvrAz20v9afPgj7rvwR64tJP53409R+e",
-	"a1IqA6L1EaK6tk0OFEDx24mmQ84oLBaYPWT+C6ZtDQ3rUZz4sHaHaRJS05kkdHJ82ayAGJdqHHLr5Rd2",
-	"C+Vrr2uEDjW3W5/ZaawDk1UCOKlFXJnIIoKr7g/qrl7U7eGF6zymHbjNuOwL/65Lcwj2rHMYWyOFYC2D",
-	"Cg32Nfu8S+T3YD5VUGR1CutnoDbXNnqExzi8HGWJPYc62nD/Id+fnO4/ffP9V+/3wz+Ptvnz4LAdjvyb",
-	"VvfKKUMHC1rjwMviEAFnl/eeg9+ktP/9/Xw+e9OETb9/uE7n/O/2/4c33x9E91eM51ueS64S4ZHut0E9",
-	"QzgsKoBMJs0r2xqblIocz42aX+z88TGDFE8Wz/W1yAF12PRv9sAPPvzxTzN+07+BOlozqfb+kBxQ1in+",
-	"ic2YGc+ymkmVfNAjVTMRnNguLFS+SWPWb627tBd2z37FEoDjb4MKSbrCHSQHHV90edbrea/Lhh32sOm2",
-	"Q/1tRREaieqYP2UrXKgFm4FkUuh8QfAtjjRZU9BK/37Ib+fcGMRmqIEcruOkdnSv6EP711P8nsbu8+K3",
-	"5XfbsLkdzKp3HK7Shduuqe6cyslE5EIlYjxv2/tfPkaHyPDHP/UnulQpSqDW37F3z/5jRxaEDW7CX0eT",
-	"ywUHOKtueOuiVhx7h2FtD3GwgYH6k/lbeH+tpR31pfadABb7wy8f/8A4SK8AvraogUJZY21Y2+vOS2tv",
-	"XMtbi62o0geXpEULQIdLV0GSIraTsfFWnWx1gQRhqeVms7E7xEvFvBv3KtzZNUW9LXTBNm768Hx9vCwi",
-	"6wr2IB6tCuMMmIV908WPNAJNLgTiMwA3pdCplrDOQF++apD5rhdvacNrDS1PZ4M5YulOL7NMqWQhIRSl",
-	"/+zRtxTZlmhVSFVKdRmz/iN46krCA50LRxRyStsQnUL7fXeW6Zt85pupHZigyca8diimtstBCqfd3UJT",
-	"39sNmkG9iy22dsesqLVVsZ1VJ6yLvVXV+HXxuF/bOIRGGQNCpGZD7/+rYq5KJXctV3awAjhquEZG3ZlR",
-	"flS/YReybznECv8NFRN7xFUqU4c+tMUJSq+kESviUHH4woVYJFOtzaosfbLLrW3GQUO7QkjLjUDhPIqa",
-	"oOiO8Yrq3a+71A+3gOKu7jicv1TYIjmJW61Q0LMB76BHVErELvZXXYh2BFNedYxdmbdyPidthtg0Apie",
-	"MIGVTwO3dltWdDkb8wvw87dVN//hl2dPfnCrAhLtfsKzpMQKOp4wmCUxt210O67CLqX0GnejaqI23ZXn",
-	"xJ/CyB9ruxur740dYH39ngtuin2ywRp7nMwArAY3fxgOHsTsz//wf8Bfiz8cxvbnWvADiMt8pNBYQOJG",
-	"M+IULYjWutA/zWZCppyJgvFsELG/HYzUo2muZ7zQl/mA/Zp9+eUR6x8Oh4d77PDgwd7AGTDc2KDDg3tg",
-	"FPjxXyn8C0CUl+wagdHiBgwVdMwZT3JtDN0VA862TF/28a+ROn+859ND4HFtGnuRBVKC+fpC+uCoPX98",
-	"YhGE+UhVx0pPHDFBzxMePILn8rYRe2Otp5cUjc/MSMVLVRYHzTAuX6G/QbEori043FQKJbDMmHIGY+MX",
-	"Rmcl4ghmBHVINVDsRRqplTeJ8ZlGhyQYJKWyscRK1wjQTOcCgto4hKFlkzaiNWBPcDlI4aQwcwNaWHU3",
-	"DSK+2+UYV48hBwKiAZsRNRN5gwAbpgraqwewKY1mSHu46V/270P878I/X9i/6bnB/8JSdxQS/ZX7mrr0",
-	"fz9TV+fv8uLvGs+W/j5s+eg/N54t/b30Ue0Bhte9CenBy6qI51Z5Ve6sVuvM7EmN7CH3JUhllrXlVJHe",
-	"5gvPdy31HvXqN6HN/9d0j9U/iGpdr6WWtZKlt7dEgIlMZYMaNUDg4K6s/HGLC9YIvBIYBOsDb1uJlBIi",
-	"NQTHaMlxocEEuYLk9blKbaUWupPuK5A46EuIt7+EMnKASp2yCY2iHpbK4mDWx4zaruql4MufGXb+eKTQ",
-	"IMFcSeP7x4wDZbbxwde6ahLILYhLqbjMBYwZvhUi1TPWhw14+ID90pbBM3OuDEyBgnCQasJufTm06U81",
-	"oT2Q1Q9bYdAbBw09w0mZy2JxjlKjLfDCc5GflsW0RfuFxzqXf0SOdMx+je+SHpJg8JAtkjNgGOpjjllc",
-	"RZqDfyIMNceCgrVgc3gDo83jE2aEsLVqEMRBagXVom723c3ap5AfGyBMYi9IuDikSoibFsW89/49OgMn",
-	"enlKQTklSr80NVjeUiFDquDHa7q9Z0kRsHco6VD7eQl2JSLDOly0EG69uqpVHXCQaDKZLAil3Qj0TVip",
-	"PiIhB5uK2DzThYls7mCY02fwbNn6ACZivzt10IDQJFe1aK6RGqnPP38SAKK7VDtekHQx+PxzVlUfB3HD",
-	"4S7XoeNdoRDw18K255K7fB/QHix9MSzN+bWi+zEvLzJppiJll6VMOcbnYVtrYN9tIlOI/A5PLCMGEHi4",
-	"pyM1z0UisA7pibdZATFxa4Hi1BJCvC2AYY1aA/aEJ9ORog2FrqpVrmTLXMwFLwxpPZBB7QwSMa7uL37B",
-	"Hml1JRQ+G6l9Kl9FhNiG4uaCGcXfinGCvb6W7inUqLt///5D1o9JPzhm3qAQAwlj0OM3rx+BF12Xxbws",
-	"BqxSoPEQU3YxDA/TG3LBwN7NSIgwAxgRVWykHydSyUKwZ0+ePNn/8sERI3XEDGjYNnaSaml+zb/G1DKF",
-	"3yxOYDg2+IuQx4IKRdIU4PYmDxP+WHMpuTMVAWVndXUKVruKLcu1LvYQBhD0o9iJx5wZmLUSGc7I2noY",
-	"ET1j45hd1QxafQMlWltY6zHVL8caPow5u4JvChYpyTSokhy4bJZFzFAuRkGCLqxfwotkCruoFtQbtOWK",
-	"bQHRESo1tBB4cFKdEO3xa0YE60KcsCSTwGchQLOkhkwhs4zJS6Vz4SZTTMWCpRq/hVlGDLFZGYjRObMZ",
-	"xobxNLVf0NbjCdSTgPyZyBEuE9mLZSKnuiBZopQjWAk8gdV5O2YHwGa/OGKn54+ePWOZKAqRm4il8lIW",
-	"9HU8AHo/hv85hv/ZjyOaEqeSEKg6cPspnC/8lvVJymBxdbzjvQH7RklMP4SWbcQ2tBYEbfPcpxm7Cwn8",
-	"DBqx1W9wTshWRopIYXzv6iBmuQZFhUSQLXjgqQXfg0siBXL9kXL5L9TPMQzkB/qD/YASyw/sMuewyz+M",
-	"1A/7+/v+/+HFkJ2yH8K9Yj8ggh6xLJgIbbfdoshWf4If4U5F9HKt9k+lYIFt+x5asm2nIddmP7Dnz16c",
-	"Y6TKpavi+wO1T9zc86SAF0WNcryR8+ihjC6ETXkiCisVrEQibPd1GYH9AJzMFHwyae2WuFvF2syJRxL1",
-	"sUQnzCZwhfaZXCQ6T2trYuwISChhPzD8hzQFMiWYNgqrSFKh+9IxIBoFbj+2MVJParIMy6QpbNE9PAhE",
-	"AaB5YrekVmJBN7iuI9Ui+hwzbk8Y6LxwZT7/HMiMVuLzz63GO0O7QDojI5ubCRZShiGIlIkbEM1lQTaC",
-	"HImoLCwygfEkDd52TD8ThcC6LCP1ci7U6atnzEmSLtsESRgmk9EVqmYOFLsSMo/Z798AFIBr5/5gSI5Q",
-	"Yy8FLRSaMOB2vISPDnF14ZNnj4GpKpEU1vJpgFifuvCwiM14BgyTCmERzcdTcKXfCrtBMKKj4cEJsSzp",
-	"nlpOA0KdXSkaEL59f8Die1PBs2L6R6Bd97A8Gf1zJopcJsYmL9/Tc6H4XA4WfJbFI4Wyh9K2k37sFg4X",
-	"Ys8RpidoC3FUiGoZS8zVWapW249xq+jA3rNPfwXAmbGrwjRSsa3bCZSypaZsjD2Y2MohbSVmj4FJ2JKb",
-	"UGGTnoL4BCP64uHwYG05TghXAnoc3/M37t7hvXr+N+vHo96oF8NM4cvrqc7o+70T6v3R+bcsEVkG3XYu",
-	"8AnVyWOLjQuhYCmbTxdGJjyj3J0+ipqMTQVPBS4zPj7Yc0FWtqMv7zlRL7bDqUJQYTybKoe65t6VIl8c",
-	"o2IJY5vzYnosU2J+MQ3i+FkqZnNdCJUs9n8rFphzSbZ0KyfNpCEsHlJyw6XHhkjglsbZt3PiqxamP75n",
-	"j9oLdz2YWaiC30S2gjFoT5bHE7cNAv+Ajx4Nhyd0eIhwQT07kID2bWsXpSv0yjhVftUTL/XIBCIflcfB",
-	"CwxoTugZKbhzIH/4a0tvRNCewFQ0Wa0ReysWKAseHR4C330wHJL6AnRjpEYeloOu0qjna1XFVani+MQa",
-	"5kFAvISBFNqPWeRgkh2M1NcaqT10ZgVqip/yRZGlqUkZXqUi4dHJAvW6xyARh8unlUAx1seCoOCHVPst",
-	"xoai0pvJRFhED8oOguq881yKgueLoHhxqORSnKSxYHEQ4mYBFYFG9Y579wfDwX2KeJyiPcBROfj3pWgL",
-	"TcTyl4YdQjaDL4U4z3UijEGilckrMWBfo/jkKN/AI7GCEzvtHff+RhS/sV01vH2HQwyus8jB8M+Q4v29",
-	"RR2hg7rJNEVdkEWgMQ8cJqzGg+FwVTN+XATConiGlLpmTOkd//4NOlFmsA3HvefySmAFwqhXIBTP76uZ",
-	"GypO6XjGykV+lWs4/6I0lKIobuauHAfpg831PaFXsNgkMk8Qb4H7FNc6f4tb5FA0DSvy0tgCaEt78sKO",
-	"bOOewLjuzTMuG7vRjNBZWnjbw10sfbBsMz+PlZsQcuqVOwH+UCeseF0toBLgzbsoJUi1aBHscOxtc9sd",
-	"ezfILRY6HDrIWW74EfvPpy+e38X6vw412nVLT+JTRxpjfS6+RC+3vzobkGVZwC/LPMcJPhjeH6nKydvc",
-	"FRbPdCpQ8NhYDhgEwqoeMHPxYce2UCbP7VFInScCtTU/SBxJv14jmJWqkFkVSAItGyChM42mEGLmAfsc",
-	"KaULmQh0RsrCiGyCFVrxeJg40C5qRX8jJidgiIhQCkDMB5lDMc8Vd/+MduUOyXFQEnj5vGL3rNC0njuf",
-	"T/jq/uavzmlpv1H8ikvyt6872tXI1xxrj6K28mR//jlayo8//7xpHF/Se3Xu1DcULAhBhSnyW2Cxy4gQ",
-	"ACiGNA7SJWI0Illx3oo+il0sRiqWafjjgD2VGVpLEj27kMo6cE+/fnzCYiBoeEekslFFpOIUOraIKPAs",
-	"sviPqj6CAfutWBiBRYGkssaTOTfGigtUtWmkoGYQWPqDAkAxFhhy/648yoi7R8M9aXwA1xTjLbSqqudC",
-	"0yAd0kswET3n7yBJR6umoTIVlGahc/QiU7gKYl5i/0hKXOcR6YTDtlsE4XaPHNi51xcMJnADp+yhNuAy",
-	"yY/r+Zjd7lAYJ/U+am+2yuy8vTY9ctXtNelzebo1WUvMWtVmgJXeqdEAgr15WZ/wPJPCFPWTHVX3ATOg",
-	"WsYAN6c2gC5hgcv9A17Ucu/iZkPvhb6Fvl9xcEjKP67sxVXHrDryuZwPhoGr8rDmqWwt2Nwmc9Xvt57U",
-	"yAZd7RUD81XEOh8qg2LNmzvke3hyMRS3he8BWjxMCGZJPAB531EX3vdrnrrwVvzkYPMn3yhuTdoipY86",
-	"cMunOr+QaSowlvDo8OHmL15r/YKrhR2d+Ym4ueffjyjNRBrwLgY83PLrNxBU0zC49rB8eBestDrzRwjV",
-	"O5AAqGYl2iAmEvx9xKW8W1arREQVv7RIq3ArUoproidjaxAgYFdMOUcjcC5cSyvEQ1zCZbbWtjHVK3T0",
-	"Lcju3d6vVToQlVb9mV+p4dHmL77WxVNMU/kLvYOnDgMbjqgsDAU32BgJ9GE5mIm7vp330GHU6Y6uv5PO",
-	"3AeuJJFSJVQbtVP5t5yimpcqcnAgKMBbp0rgvUID2nwuFOmk627iKU7hZ3kdcWjP9UqrBC6T+XQlfwZX",
-	"Mjh66L5LLJF3N9BeplU3cIsr52tb43Gba/NBF49y5AzjoBHTqBG1jsKuPRNsZFP6aGOdy0vMsXEBJsXU",
-	"scoKozKTiryGTKJpPnbNjPUEfEIFYvDZhjwfdRly6E0pwCshlRM8BuzMtt4YhgcYhS/8X6C9IhyPCxiy",
-	"0ZF9YckOtjVSGAeP2WlaCW8YKgCq3frA2qu271kC5JfHOo3iOZkHxnbxT6xpy/r0XQ5/CTF6VtUcqUtR",
-	"GPSLoI/fxYjJIvLOFzdbwjbE0CyeEztANCVuRsqUc5EbgZN/6SCUrF3PklM6p1MuFUu4Ijw3TElg/aPh",
-	"w2ik0AEV2zxQM7ZfWxfYGcJb9I8ODyNyfILfKpl6Oalyjno2Be2d+Ei2kSL0foCifXEwhOSBw8O9yNod",
-	"ggA2CEqz2atA7PfQpRqjd2tsty4+pjHQtmK0FHFCfOr3EW0XSrh8Bw+Yjw3aw2LGBo3fsG1KXEO0QMEy",
-	"wQ1l69hvbFSWPWw8g8cLagcyP9wvvpgNNTPTpmCHEKiqJ5XZkufVZQEfpG8WjloGp7Q+CTeERJeqwCrS",
-	"WlVN7dlRSEX5J2YMrq9wGrXQyeDFmJYPx9C3u8SMvIncFu0RxJkHuqWewGw1xsDbsVCpGSshUou6HR/b",
-	"ycBwa3cNFgA+ZNaJbBF93Qmfyssp/E37qXieQ2QD/IIdwVzwa+jwBE1Q0IiNNKKx2BFEGNkGjLuwSbYu",
-	"xOJ6uiBI3kuhRM4x7Cm2X1UGLVzkvTb5gSjnE0eNP1CCQDb2a50ubk148CPzLL8eYe8L8deEl4OPo0uE",
-	"afnku8f+n+tkRS7nK15MwwraVKI7bjBHhHCpTzFa5+r5DyY4DTsITo+0mmQWwujooMOYXvFFpnn6Wuvn",
-	"kM9I3z3osgCmnFNtiRcilfz1gkAsjw4Pu3xsPeEgaz1RBXgS/kJFwyfNkDmkcihiYeUUkryCIqxOZHyX",
-	"3Ia4OM90MZiry05K2g6GFD4TGECIzgbszFxdxnZmr77+GyZnYGRco4C9ynTx6uu/uUsVDMdwz65Ci0n3",
-	"QipO5qwuzmCc5Sel6ye/WXBwAm0rYnSK7tzo4U75HVyp8yqY2IuBPgVqxvO3kHnlElo8tl/k0ncnElM2",
-	"IAtUpaQw8KpgwZwrkbELkelrVFjoavrYKk4xMhj9NFKKz1DIpPZ9Jk6Q5QOtWy/Rput9/u1HuN7m6vJX",
-	"NztFd3y60D/TC33+7ce50FXAfTebSu1SN+/ws6WUMpgT1XyEhMMq/yPIZbMTRlWPokx4pR1SIDPd5uqW",
-	"M1cMifGCxdXzuNLeULtyut7egC1FYQ7Yq2rulJrTzE7jauFSuNCjP0XOPqFyVLywge/QIDiUsRwmEYWT",
-	"GvrYSMELwqDiRqTJFj6EkFMXDUrJT1itRZeFkamtHGjTA0U6UqQB6pwIGeNk7R6w0CpOqU4TSHupcv5s",
-	"PxjxOlJHw4ertbpgUX52el01tq0Uu+GdDIC6WOWNtTasuU+oiSj0y+aW5anIB71POtgnHezOvdZhwgSm",
-	"67n83oC9hFygI49Zw1Ms37kFE/0LjejNlrxh5m/TsIzlhG26lmVIDv05prKj5FojG1oqEms/sRUNSSGF",
-	"lkRrzQp2ik2jjbwqwIvAxkTqMQKUYFHJCMcrUxqYiD1R1krsDdhpjaEQWHum1aXIl2eGMWIPj1GOhSfw",
-	"AAsnD0bqDIvFmNBFiEniSl8T8zRtJJ6qp92GF/72iTuN7Sci7CstdjQqgAP5RKw/Ees796U2007v1J26",
-	"hLh4yxo9RTaEvVRhDi0KAEYgF/GqmNhvG+CNP8OghSXUzBVKd23hP2nfP/29+7Y9q701nGGNbbqjGh51",
-	"UbNrIDir7xl7FiT0Q7MjtSJF32K2XfAimVKyIhSSCTvaO/F58iM14y4oCX2sDqEUbukUhKZ+Y1DWNY4Z",
-	"LTX/LoAHVEVP8SPWnwmuGmUHI6b0SPla9RaWYTbnuUDJhtJQ6/m/xz6ZZqQQmhwxmB0YOTbxy8ebQcsh",
-	"DhIhHg0q4yOF6Np//i//W8NhXIHtDMJFHhc6Ezm3CM9xRALiSDlTxI//cjhkv3TFZtg35+zJq1N2/t3+",
-	"V0dfsBfYOvtqOBw+DrGA6vt4shwbQMNCTMpcprhGkYsTG6ka9A0+drEELm7stEoxxaV12OmU/+DEVJBs",
-	"DW7tqUP3r50v+JTw80IE8jpyA3PR5yPFCzi8FP0AxN7mMXFcfqzOEjauc+siwnZPELXRvkcBCYi1Yyyw",
-	"n+vFNu8Qk8jeG7YbjRQiiqCYn2tCN3I+emzS1fPnucCeipwrQ+EM9phTbUtcuKPhQ2ZNxq5SDdl4XJ42",
-	"SfBhRRrI58J/jJUuxu63eC/yuk4VxAI3jivmY5+8v6xqJIxQqZpoWIPsu1NuxhMJoSyQ+nyMUJThmlsc",
-	"o3A3g6Af6LN29HGtx8G5RUADTqEyK0xM39Yht39eakgb7PNHDh9oA3LvIEm4y890WcBF/6SyfFJZ7l50",
-	"OiMZgbcjA1XAQB0lqLDK/AZVJoAyuvd99cd7p+NYknhH3v/AioM3naI8CyzEXPMTOswKXhDHcx6KkVL6",
-	"eu/YY9MKX6zM87GCbP1IkPFb6i734Ywj1Ve66MIsSJ6Clx23IV8qJYPajEWKHEdLWkRFfHjhsK8DZwLO",
-	"6prDE1ogh9BtnMeFGRHGgNLExlKNEaQJga4UWtxMmUybHM+MFDFjnWFxaiUG7LsGbC61D/GGxNX4pRhP",
-	"dZlbDJ1AgJHGtoPIvrSAtBMRVVQj6D0c2IAdDY8ciiHGjeYCITTgRTTgX+s8Netcvs/UU031O7Zja5UY",
-	"39uckbk6zGubdMplbjLTlNzvsANP0JxI/qkLI1SxKmGOF9vnC955Mo/binU5PdXWf9LCf3JWsrwrcFW5",
-	"PZa3qoJvYiG36xY/NSx+9fL8NVvjfY8jUldCm1i1DhPKKl9iLrElCvESe4Gri5i4IxX/zRPquiPHjPcs",
-	"hhuuPkD3eRAydIskb93wUtPqWP9aN8eProyjkfJZFeQiWa0jVPTwQxzSIVW9I32hbaCfvNOftIdP2kMX",
-	"kv+7koNMslhD+27VTW2xNjvpBA2BPyMohTAPjMRUBzN3scAMoFX+ixe26zskANTFOs+Dnf8ndIDbd91l",
-	"WYB4XD8rYaiFfWfl+d3GSRCKGGgnhfPHEpvX6E/qwYC90qYgJB9KEYN/48sEmQxxblWdQrLWy8IsnXnX",
-	"NGmON8Ev/cPhAeRfCQQ8yaupYzpiFJhYXfGUKijDN0I1nkYqSMGshi5ueFLYbL7GuD4zzN4foiMj5Qaq",
-	"rHDCMcyDQibAGHo4HGLmYi4MWa99XQtAwA8M/VS8IUBDqOpKmhBmy9vSzVRf4xSgiAgD8/OpNQBUiO2l",
-	"ku9KWnupQMAlpRbCRdaYTV849Jy7EGOo8Z9IcLEza6FZpLMmPHPGlcbOn/gdRhwLMpYidbtNg+zq8dG1",
-	"s/un8w9L7nKMJA441b3v4dj8R8vu+iSK/QwDBfHyeGoUVd63UOSh0lDbMrO69GXP9C0IYZErNa49TE2Y",
-	"ZB+vRiglStoGrwZeu8qyhf+5G4vbKTNzkYDNPCBnAY3rYHcLUueqEVW4WQdHXx59df+Loy83wGe9+Ulo",
-	"eyWPfjK+/fTX/6Vyu7H7/ba61/Yel/bIMWTnlu5UqBCVIEk+eo9oEFSTjhAIgjBimFTkw8dCfmjbQBD9",
-	"d2DmqkPpvNJZ5oE/RqqGFdeKMIllUgCLG2/pcRXmgigYIA/Xv0Fs62vwLxhRsD76bC3eOvRhizJaHdjo",
-	"nEGzrt5YDK77mc5F7FwUAjEl4ZHFw2HXIhcOk4ElemarOIzUUww+AUGpPiIjhKufhk14MVurRBy7ZrFc",
-	"C1UPJXAGpLk5uVWEzMMACWP7RRsip3nBVuQUvCGwJgH15ZxOfqBI+vKBr35Br0mDiLiFUK7roDtqBCHY",
-	"wUl1jEFQKPIDigfGkLikIwx2GpCQCE4++3zAU4jRiOkHG4VBFmMfYjFwUU7Rak+nfTP8Nd5DONBWj5z/",
-	"wP8UDgJR+osQWaWCPIGhwyl3Rcr9y6EjUCuqbNFqizjDhp7g5i6zwV2gFE8sp6qGAjfAvToRIl3Fw/AO",
-	"bY+1eKtwkwfD4erSeB+bY9LmPBXtUR8h1ONfBgjWX6IsTKwFji2scz2crRaLTU92M0bmZWfvUlDDaSlt",
-	"WufWIgPkrh9UGKxgqCyloyCACcYIKVFVGwQKRTaKBurVZx4QPRC5HT+taPAx4+xweADef65MUOGoRtwx",
-	"5LBUNn1GBYXjqLIMVACxkZM0sqp2iTUI6ZziEVnfVw+PECfIby0TUJgvYoXWUJ9zpPAls0feKah8Rj6q",
-	"yNUKszGNYWJPPWXymOX8eqRSXvAKoKuY5vpaQRDEAiJwg8o4rH90c7NHvXjzU4AadSEW2iL90H0nq89x",
-	"sOhsVhpX944gDU1Ba1rtU4WfdeLMSLAkPlfdwXxl/EJkCAfIc4M8faT6S3hKhl1qKr8TxOPSYSmubT1V",
-	"4wrEUUl3PlK1UNwTd0lkWrNxBbUsbaWiX7CgVM1InQsQbZaq1xSazcDwlosCM/QNnwgCBMfW8Yq5iJuR",
-	"otJIKAkYEizEDIcPAFBU8MZBQB0eMQwUobBQa0r7DC126lLk81ySxMHZ+W9O9w8ffHEcFswh/EW/+IwD",
-	"98sNYbWNlFCJ9tkNrI/1nmWBZVkTCgqdCTj2VnayKzrjRSHyvRPqaKSgZlHYEfKxqnSQ8VhROb+mykoX",
-	"i0JQUb5zPhNQ2yZyYOd+UhFJuW7KvixXSmfv888dttpIMX+hPv+cqtMUZa6qeR0ODxqg6jgKFFKdqcvW",
-	"mMTXatt7JuYZX2C3eSlisOAxIxK4FbCilRu5Ph1nni7COR1j+Z7wxaACQ326ngCAXymD+sY0b9s1hjPB",
-	"gGEPbLS5FTZdC4WcCYyndWj4Oc6EAq91zhC97mj4EEHEaN71mg0SNJUKX2silTRTGA+0jLM4rTqDs2yJ",
-	"E5AU6OABUBb/OditUfN5Kxb+asHR6cdYWCUxV/Ee1GtSi1rVP6jykhfw5oB9h6N8RFLLPli+jpn/uELo",
-	"Gylb6crWi6QwcqfrLB3PmOgYiNhVx1i7t1ZgoO8YJlGa2FWXiVmfyk7zbO/EIgLETXEqtkHfQbdINi+E",
-	"E0T7R8Phnjcc4QGVhn3z+un+V1A8KSPSh1dnn64jgIzAO1QcM92jQKijg6+GI9W3U4e0iAuYs/YgkfGo",
-	"F5+w509hix6dPX9KxcCESgF24LlUmFWgjT2QI+ULTEJf8S9ihz1A2wNLAQ/MWzmfi/TE1pfOsJ3ghwHN",
-	"iw45FRfAfq3+SBs2YI+wrpnx3klCcVQLokC2mCQVP8PaiLQj7IdKr4EA+R+8CKSvl6pM+kqTb6XCYo8L",
-	"AXUOY9dCjH/g97GrjuiiVtzL9kFQEHTFQ/wcGVL1Mf5Z/5R0anq7UTLOfeWSRGo/R+zP/+V/Z8NGC76K",
-	"m/8YAweDqs/2MK3+YaT8IkDhMOy/6qVino2ZunSYpQ/cD7bSd0TlRAUbsj69QqLYwR7VktxnLwMEx7nI",
-	"YScBStQVWbe1TueofTLEHKxReIQI9NuG99XuQihxkj8ML6KjkIIX9Ubq27HnLLjwe7OHYL369G8TlKrD",
-	"bho9BCu2N2Bn+tpyWlsGDfi1l36gJfwVSS8Gn9E9CPuVproUZJBVC7wFKCLQi7VCyKURUKcWekpFImc8",
-	"I/xVrEzn6BoSYYVUKj4YPBD79+M9yn9iQNdKw1VqHHijxmIlX/OvgaA+UxMf4soy+VaERWoJeoxK6/oV",
-	"QdAQTP+SCoUYy2mwKmK9hAkQ2QWB1RqY5GeGwZ32lBVPFn2uwuKYaWmXNHVLSKSGu6qa1RrS77ZWM6yj",
-	"lcMr9k6KAcg+vjoxVwFNs44JIHYEn4nJ8/jS0fDhFyQLBTX1LFDr3FaZ7FwEko5H+/vxnj8zuMaEOg5r",
-	"jFIirWMfEsgQ9caL2VQz3hJWIltgH2I+Cgs+gVKE+JuJmG/CaXAO2QoYPfI0cl9bhFVoCqplwBeoseBF",
-	"JjBVEpNsbUZQWKz9Sljt0beIxd8InU+rfaIm5Fk88ZilfIGS0IWmCGtUmcj5EtSc+sxgo1QYJw9iAKAJ",
-	"i5mL1ltbh9GdBbfkg8EgdvtGNsEbXIXjkYrjeKR+YWUZ6jiguvOpLjRKBfsHrG9Z6zIL3RspON6R05pI",
-	"oazzA0f6I08TIkdhRsptZaQkvC+i5wfRcPAgGg6GB8PDKFr7xvDhV+1vHEYHgyG8cTh80P7G/eiQ3jg6",
-	"OMA36PS43yP8+MEw+m5/ODw6XPHCwf379ML96NAu6IrAg7Ny+zStQOL/rVj0ls11cDLwpHkxEFkG4Uk7",
-	"TRjjqVaY8z6wmNA2owmOVsWhV43rFuoxdR2bz4pAswqvUkeqEP5Vowwk8Vso9VMN0UvuMDoNzKeRE7Nq",
-	"QE7677xoL90H7+8MkaQMInmjnlOM6g0sLwRyfirAnxKJhDnPpHou1GUxDQ3KITbfx8svPCs3pRXmZZVN",
-	"6LKScl86pg/ypqXVudXmR2rJhhORN8p+ZFmDh6u3G2ZdFEGsTJutYHmhYzQeuNKO0ji9x/bm1g5dh4pV",
-	"UWnYacN4AQp0l/CaC60zwRUehm4RPRg9UTq05rxU/yGxmj9F8/wM8SS1KRj3F3kii+Ayhx6Mcl0sdZiN",
-	"2eK82KJM1WoHhqM3zvHMnQHwGEfshH5bPqJRNYDMrt4/Q89q/ulcJEJiQmOdoK0qYLqDrHNWqrtGloFh",
-	"rabVn+Jnfg6Vqaw/gA7vrV6x2w6soVfqRVicfaV+e2zcBViKfLWVkfJAqbZenBNDnRXLeC/bclpHUEzO",
-	"glfYMvoy9z7BsAoOxE+3RU+4MjzU6qUEGQU1SjsIF7pYKyVTL6HgM4XBkm5TgYNKMkE0hbevn4VRRiP1",
-	"WORAW5rwNo7S/O5RFHoiyqyWMG5GCixEQLIi1kiMwyoyNqTJVxQZqYNB0Mt1bYgrM7+PWewmBRWHDsMm",
-	"El1mKas5WRuv32/26IFMpLJBMo0vjsIvrAcDFmMGlLvQ+cI5WDm6XbzlCdPOG209GIQBke1xNx6ZqJYu",
-	"bw0V9jQQeE/ge6Bxhb1FTSga/LzWZd+jFy8jzeSCnDIiI8QjtGuikSsAsBmpL8LFqeXQH7MYlgC3jGcw",
-	"+S/Dd4PUfNb3sjeci4j8Sj47n6YGpYIYc2cI6FUtss6HzuFBZjIIygJUJpcwamlJvJpZnvmYiJ8jz3Sj",
-	"W8U66edP7POnZ5/ndcQoivgs1a3G2hAvtZf4wwNvqJ2A/iAxCM0x0D7cV95AXXNkw1TGPfAVYsijNOwd",
-	"JUVKS9NUIpp8tFbKzKJZOWdZZRHqV9wdDPUT66cOErs8t6jCDK2F2erRVQGzKvq28Dfns2bY7UitDA5i",
-	"62ODYEXrJFqaJcHimlfL7QIOicMWciZcuKT39zvRH/HdkNUKY31HqzDyrANkpIJe+0aIgCQ2hTJwNLmz",
-	"YDe8CiGGbZCFEdkEWQTkkqGQ6DlIxfdLtTFMyILkW7AxKn8qstRGD0FfiFDvsdusa80ejRPvsGIyrcUE",
-	"hVE66C2AtiKQ84AnWnQax/xk4QOMp9yEjVpW7qZGnHikqtmtti/bBfwgNnL7BkA7qp8IBmwz//LyCB0V",
-	"mdeKItowmk95/J/MTXev/aapP42FDgxP71yCfzEVs224+Rq92HZ073vvk3t/y5rxpApKIHIZMZ7k2mAB",
-	"ZrpvLo3ZpjlHqNIuKc4nbAPz8F1ZRmprhaDWK9MKmZPGRTAqjgEQwGQVrLBCSicqtlJQXyYrgPhSm/oS",
-	"Y7O/el9OPWfOj+h2EufuUkeor80nNeFnX1GweUt547TemsKAIcUdtYSwApIxpcAixlylesawGdb34ccH",
-	"h1+xC1mYveouge1KUUSzsdWUjUhyUVhoOnRvVQ4tlS1OfJSFyF2oOTxHkdCGLY/UlJspkioyp2X60jBZ",
-	"rBbDXsNQ7wheANv+ieQo7HuDwxO3KarUHbsBAOagUET+uV/+T0LO3RMfvNuM02EJCI0lFR2TZOlt7zpL",
-	"RSYK0Zm+nIkr/dZGbGFLJzZ+qop2Gx7sVQZpi9Jigb0QjWSkgtA9p8rl2G5KbVo5o41UPMbhOlKxOX/+",
-	"A4SAb7559riV/R8trxYty6dE8p8FIDBsxYdfk1yo1NwleK+xeBYrAHvryeGBhwYL9Y0U2Mn9+Q9wF2OT",
-	"6TlEiGLo2AU3IozLx8IH0IuVWM4fY0uVlyh2X8SVwb8aLrx3LVWqr6sOD4eQaA6sMteZC0U1EnFuf/yX",
-	"Q3b+mPWvea6kuqRMix//5T4+JPvcXkR19MFudD4V11OeF+AgyAvWf3b+kn351ZfD/UM7ne+EKS7R/45m",
-	"qoP9Q1M1HrGD/fsQoX24f2gidrZ/ZCJ2tH9ACtPB8Ib1yXu0h/YJAQvJyY1YLaype/YMecwwkihELz5p",
-	"IOqTySOTXk0Zqdh3cMwmPDOEO3wldUZmP8JjgsXykP0BQhWYMq90huZDTJOZiGsXZwxJcc3NKaYitzYw",
-	"v+kQqEr7geZMVWaZhWGmLqWpFmHATimGlx1g+G41K7Bp8vSEQciTSig73AEAqPBEoPMJ0QD6iucYpF64",
-	"tQCGgGcSrxWzDD0K5EOM5EpEtFxpQl+rkfrdI4aMPC1zYSg0o1ZjImK5uCwz+Kat3ES7aoqjWcFH1oVV",
-	"3g4cy8cAWW7rw8+2c6wjrtMr/1lLBOYTjHAD+hEa0cEqgRb+q5VhtHAwbiEC9DkvWnoXNxt6L/Qt9P0b",
-	"fc1mkJfRuJNRA4+jTkAjSjAtAiK9apTu93bwgMMQO+CwBh1w+JGhA+g+rbIWi1zCosDVdTOKfOqCSivS",
-	"+AlS4PbFose5nBRO4rCZ9+5CYxEf9GFZMaPBzGFz6pz3rkpDk9R1l2XeUduGXmqBBtRv3AjMrdhCxNKc",
-	"X5PrrJJ1UEo5DmUHm0xLRlhiZZjMIRiddnhAMtFIBaIQrbOPCHKtoehBt0KgTTsTthI9xR1idn0GvPus",
-	"RRhRuqBRr2N+K0vEf+KBn3jgf8M8UM74pbhnri5/dTPL6gywJXdimdkhafjExu6inHRFeilMB2l3xIiK",
-	"3TJXgr5FUuZgNQSqeCF4LvLTspj2jn//5v0b32HzPjwLcrBLqnsdFCkLQj76lTJu9gbVeYevWtLWnhIS",
-	"TdiWu2jkgQ+CG4GLmqBJuybLjT5TVyI3glX45kGd7nqCethe9Xpbo787ddV5YCxhTes6fqS4bvu4CkGq",
-	"gx9FPtAgiPvxfDOpcJNqvVj32lI37XU3oyouqcI6aZZr8a2/S1oaJsxlBA62GIZetJA5q+Cd2VxnMpEi",
-	"XFb7QVurr56RVSt8nR60vP0c/DrCeCAm/OdMFLlM3LSkYalOfF5cLRWOtvXN+/9/AA==",
+	"7L1fcxtJdi/4VXIxnmigpwiCFNXdIsMRl01JHnmkloaUun13oEElUQkiR4VMqLKKJKZbG971i+/rvQ+O",
+	"2Ne7u+92xMbExr61XzeuP8POJ7lxzsnMyioUgAJEqXt85QhPi4Wq/J/n//md7ztjPZtrJVRuOsffd6aC",
+	"JyLDf56LPFucTnKRwV+JMONMznOpVee4cyHGWiWG5ZrdcJmzSzHRmWAZfCLVVb8TdTLxtpCZSDrHeVaI",
+	"qGPGUzHj0NRMKjkrZp3jQdTJF3PROe5IlYsrkXXevXsXdeY84zOR22GcFdm1ePJweQwvp4KN4cfPDJMJ",
+	"dCnh8Zzn007UUXyGDSdrh/JXmZh0jju/2C9XYZ9+NfuvXj152IHxPEnEbK5zocaL34jF8kBO2TiVQuV7",
+	"46k2QrE3YsG6nMH3TBrG2ZXWCRtPtRyLHsunPGcz/kbAL7BgUiRDBUMUJmeGT8QJM0KwfCqYnouMQy+f",
+	"GRb02R8qN1var3K+wVj3YLCVdee3T4W6yqed44PDryLYB/83rHqeiwza/P3vTvf+Z773x8Heg/7oeO/1",
+	"9wfRweFX7/6q47fL5JlUV7Q4yuRZMRMqb94h6X9nMhEqlxMpsohxw+ba5CJhNzKfMpkblhXKrNrFspNd",
+	"d/OJ7xyHfV6oVWcqK9SHPVHv4Hsz18oIPOFf8+Scth/+GmuV29Xk83kqx3gA9ueZvkzF7Fd/MDDQ71v2",
+	"+IK+ok6rU33G04nOZiJhZqFyfhuxm0yrKwZbzHTGOLvmaSGYLnIjEzqP1Owxm7lvh+pvL55/EzHO6Eiw",
+	"m6nIBONMFbNLkbFLkWp1ZSLGFSvUG6VvFJtIkSbwiT1xTGdDlXF1Jdi11CnPBf76thDZgnlaQPcm0cIw",
+	"pXMGS7OAe/Au6pxpNUnl+KOuHh4UYXSRjYH+mJzngk10dimBKuKPdKG7nIgUy8S1FDciYTzNBE8WEeND",
+	"RT/BFdBFzjibyDxi3H8MP9DC85lgsrzbSGNMLtOUSTWE6V9N855dj8c4jESoj70guX4jFEv5+I1h4hq2",
+	"z4z1XLBU4k2XisW3e+7q7OFvJu53kIrASeDpoyzT2ccctuuYCei5z2AalzpZMMMXhmmVLtiwIysvDTuM",
+	"q6SyyUAs3kWdb3T+WBcq+djrDpQp8cexvCTiVpocR/aCL1LNk5daP+XZlfjYA8QVFbdjIeztMCK7Ftln",
+	"ho21msirIhMJS+VM0mgvRHYtx+KV4tdcpvwy/egDTnjOL7kRbMwVrOQl7DUfT0XClL6J/BzkWACLN9Mi",
+	"z4H8JfpGRUjQuhOkoTeZzJHpS4OskKuxnb2BFhN7xi7FmBdGIB/0fUszVEBYuUouF8Tz6+LZnpfPmiZr",
+	"394PJDmc70utn3G1sEzH/CRk4jPjb08GtFMapq9FhitgT8JdTfeV4kU+1Zn8o/ioV/OZNEaqq6hkl5Fn",
+	"gjoDhqDfiIRdCp6JjFalNunvvvtu77TIp0LlMEqxLLDEX+PXMbEKrliMNCpmPM8zeVnkgnXPH5+xL768",
+	"P+itF8vrsh0t3TzTY2EMXMJHKpf54mOu4HciTfeslCLVvMhJCrjMBH+D4nORCqYn4XU8sStgYiSLhsG1",
+	"HSo9mQiVwBVF8aOk4EUqLNt8pUwxn+ssF8kzkUj+EtfjY4sUeCU+M+yMet2DUcDlACqkVU0tYHw8FvPc",
+	"9FGmtX3AEE7xORCbJ7BsOPYkkfANT19k0EAuhekcT3hqRH0k5dcsn2bCTHWamBNcSRxDKiY5yIUsRzUG",
+	"hiTUlVQC1ZQJL9Kcdc2UhL00JdavFb44E/lUJ3gU58E4vu9c8vGb0Zin41Gqb0a5TkUGIxjNSbATt+O0",
+	"MPJaPHPaI51fOB087xx3El0Ao4hAzaEXDgaDqEnZJNkUtrzscybVaM6NGU0yPqZl+H5t261b/jgzmeqZ",
+	"NmORcJPLscwXI57OpxtP4ym+9C4iCQc2fcvvQNYb6cloIrf9csZVwnOdNejTZ1MBEuQNaNNswmVaZPRf",
+	"OmrXIkvkOD/BP3Q+FZlhHJSO5FoanS1Qb8vFzGwaC/bzDZ8JGs/tE/rooFxfnmUcdOhCybeFsL/DbtkJ",
+	"iHTrWd+OMvNhjwIc5VRci9RYpZ9evR9+d7hseaEPs5F5W/CMGOV7nH9d5KkU2Wis9RszSj7YZF0/Ji9Q",
+	"wf+j+HB9ZYUyW+73tcjkxHKMZUpQPfY//PLhD6B1B5+Q8MezhHWfnH27f3b2bY/N+IIBbWX8iksFykdu",
+	"hkrpmQQNBXX2PntoqfDhIGIcJCH26oI9enHKLr7b++roC/YMqTD7ajAYPByqMU/lpeUoYfd0xVJ+qTO8",
+	"qp8ZS76ZEbmBjpm+sdaoD7Di7/wTffkHMc5hQUvW9EKncrzYkrM9Qq3UMzXgSxOdjUXk+JYpOdbWLGp5",
+	"qu/PcLZhLC2+Xs0mWnzcwCRafNXIIlp8V2EQ29PzCgVvINetRlAh1m2+qJDenShsG0q6xVc1utjiyyqV",
+	"a/HBNjQOZFyic2mqwRgGWnIjxTOsmwREbDX5QlFy4zDfhZrP78KNqh2NpgO78t6svo7RWmKxnhDUz0n1",
+	"JC7fw8qeNW/98jEKL9jaPXzdRIXd8ag7Qoy8UtgQ6A64wP3OWh4w6N8PeUB/MBgcNJyxU8XTRS42Uvsq",
+	"vSaLfXu/QNR5W3CVb/rEDua3+O47lA43fvMK3qmfQhyf/b5xmcOOtlThFOP0NfgynP3SixOg/mYClF1Q",
+	"iUEJNn32nTUhLL+eO7fIUJX3E9owfDZPhWFjnmULFksz8p6NmF0KdBzE5SMynJHRWwKrzXORWM1wqNx7",
+	"DEURdjq63T8dSeMFHfi2nNRYq7FQOb6rIhwNt+OxqsOTi6DNVApT8WXcSJXoG9adw11SuTMjOFlIZ+Yz",
+	"NhNcsScXzLVy4sSEofpi8Oe//y8Hh/fZLyM21rOZVuzJ2Yu9ZxdsjvcYZIpJpmdsJmY6W/Rwvim/uhK0",
+	"+mCvmYo0IZMz7QX4U8jpIg27/f/+twH7139iiUwLpIz/+k9sQjKeTouZYP/6JzddPtOFyuFBki2YoyMg",
+	"3OS+bamuhgpOWsQysFHbYbwteAqn346jIuvx8TgTicztCmfiqkjhN/zw4vkLmLcYqonMTH7CeNkWm4vM",
+	"aGVdHs4XkAlTpDlJi9V7moixnPHULFOUcxgqeJnRgDrjasHcy2hOFTyBjSvJTs7InGz6IZU5aBY0A86c",
+	"iFzgqo3Q+LhC+1mnHbhbM3I3ZDvKI82ITuRoKq+mq2WOUHrepLCUbQILupMm3R5nG6Wx37o3LwQSM38M",
+	"d17hsoX2FDfqBGdjZM/G8jlz+tI91r2ZCsVid8pi9OBfGqHyXvVIhXzroCGQoYmeF4nMH12LFtS8ekFK",
+	"DaFmHwVr6A03LNFKREz0r/oszgrVH2eC5yKJIxYjte0TqS3/5vN5pq/DJ5mAYYok7i/7+SMYgW6IAwFp",
+	"21FO8v6hgZZDQ83t1Dae52IvlzPR9G4ici7TZiFyzrNcjouUZyZiUo3TAo273LlZM/QvcKNVvzFsIWTD",
+	"PO+4CUYdL4PZ3l+v2sen+mrLXRTXLsqmlToTnJYlfaY2A9ty01jPOHIPs+LwEIMAwowHXSXW1nxsTcso",
+	"yDkGHDjrPB8cZzIXmeTE7ObFZSoNuMmuCpnAxw02hCpfGaoqY7EWBuAvYF5m80yMRSKwKdpcdrlo4DZD",
+	"5YOQUsGNsEEybqWXTtdMKmfwW9YWUZXccnthC4tcJMsr/RheZ0hYUMSAxtlYF2nCrHPRfYurpVgMCoFI",
+	"kPhgX7gyMR3JmHzTN9NFcLQvtU4FV9VrszRnT3mXL1RgE8GjACMC7QMFlROmijStz2DK4agojBa5wX/n",
+	"fiLNYj+0Qu5cMg6tV/rrx1XkU4wDcU4EG0WFogGNCKh2IqpWYrQQ30gj7MRCM/Hy4rVRGSp2BtqpYLWD",
+	"xsgf3ziVTHj3E926vHSdgFiF16mRghq4N6CGrthHjCJz78DWzAQ3eGdRtAy38r03rFmfKUfoTpxfpqi8",
+	"JVUF1C7VWrJbrntTCB786FhRQLvmaCY8ZnGp8gPPI50/joYqDvR9+KWu6sMzr60DnZJawTOvn2MjmYBf",
+	"roWX/kbkh41Y7NV1/Ap0ooKnI1DZ4YHVyw22MtNK51rJMfySZHKSx30WPGVdv2ZABO2B6TG7CYb0KNKv",
+	"cg2EBc7NOE8XzDdCbnbUgHT2BtU/iL3quw4x7MDtEuM5k+pKmPwYP1HixsdcmlTPRUU5Q3UJlYOH3iuL",
+	"gUtlDCD8WupwhwM20yZnQOJVPlROKqE+TFQGQH0nTH4FqiiJKaSysq4RYqjiv3n0ku1fH+znmVCJiXt9",
+	"9qRy1VmhUmFMSDpSadCCzbgZKr+okb2L8LF3cuJVmYBMAcKNYgcDVhvnUGGkTeT6oQbKreoiUaenTtNj",
+	"NYLZs2Z0VcxWGKiqpqkGo1RoVrIHtRN1QjvSilMa2pTwreCMlqYjHIk7RXBT4bgEF9WSqKhzuwez2Lvm",
+	"GXrgYTp4dZ9BvKmdEj1w88K/nvLxm+eTxzJ3D369PD98/jUfvzmrzBEfn1/4edLfdrIXdq6P7FTxxyfB",
+	"fO3bNOlzmjM+e15OnMYbzB4fPKQloBjE0hrRRJ+cg6ZmtrA6enklCiXzZlpcUdP8/23QmSA2UqL01MAu",
+	"bvSekWAJGPu3yGgHtxdPxDVPTcQG/ftATgb9Bw8ebLTnPXjwoGLRu988qjzT6VNgDmZLy9bFVNxMeYbS",
+	"KDRC0UKGdZ9cPGdffvXlYO+w55icj6uEeKpUKtFv4GlNqhYq4S3t3/aLVN+0/AD3X7R8+YZnClTeLQbk",
+	"Pmk7ohoXt8OrtlMbSGXWUWXRGjk3bdV5kTby7pK4gzjU9X+KnPG0H7GzVKo+O5uKWZ8dfsm6Bw++Ouix",
+	"owf3escsPtg7NPEQ5VCynV2KhVYJ+/GfD4EPde24eyfw6j0TYwSLf+ceu3h4wuJDaITlNxpYnzJiXADl",
+	"cK95RoYt4nk7YfH53hF9w4JPImh+qPilvhbsV/i+CzVCQRQjom/Yn//xPx9Sz0d7ByZmE11kbLnnofJd",
+	"H4RdHwxuY5YLVfnEBtjg22jl1BPPlavMBZasE3VgOTpR55D+gul0og6MB34b3LYk7bCpB9QC/Oue+9eh",
+	"f3Z+5P51dODfg/bhZBSZaTIsPJ/zt4WAMGcjcmCzRmesC9f4i6MiK6/2HCiHunK2GZfPcP/gsFV+w2jv",
+	"9a/+qknKxqyTbW3uzqBNBhX2nVOXMsFhkKaq89mXwVySpiD9jbWYTORYCpWjaFhl0iYmJXCsr3kmQbaN",
+	"MexFzOb5IiLJj260ISOMEtA6dIPvAdmLWGz1IlQtYwiqiSPbLkbdoHI5VKBcNhhq+ZjIxIjnjVqNcp4C",
+	"1Afd21WWsc7iw0s3z9Jv48CQsVY7c+/BNzin7RzITc7jcGeWJ/5EsZlORLon3hbkxNRZIrJjBhyHZ+x3",
+	"l4OIXR68juyDkc7klVTsd/jsbcGTjIOuZt+L2OXh60oQUztftbVm3Gsa/moh4KyB9cMmXpKkjuZ1p5h6",
+	"kaCVyzXqlEe1qV/3G5vxPJO3ruNwrSNmfvyX7t/9///333/3d70//6//74//D3gvbgyITcF7tN6VJbuz",
+	"tVu/sGRmXX8dbI4H9/4udJzlequbkUwanCNWZGWJuMoEuLcmbJIJkehZxBTwGDYPTAiBt4OiNUfXIjON",
+	"4urLwBEG55neJ7LiVUOYG+arkNkZ398/6A/6g2YTso0Q0mrTNXzkX3wXdcBnZppMauMcDPMYhUoDoeFZ",
+	"E5DSzgLUOhzwscwfp/yq6f5PBb+WwuSkkm1qCJWciynP0EAkk3ZpYVGY5dZovPOBJTXfhTS5VOOc7q9x",
+	"KsWE9Ij1bq/US+BrJ0RvwW1A7blxePTTCEy0qw8VvcTcS833A3h7ZegHTUNHkrtp5M/wpXdRRzVdH8uV",
+	"ywVjXTykCTqlhVPQC4X6+cbFnGvZyB8o6Mw70600ELnp6oy5XiN2leliDkkBC0uOpSI+amTJWdpHuMLS",
+	"voBhNZ3qSiRSPfAeEspEUqWywAlykYEii4PpFqTL2jieCnfr7WgBRmPUpnmd40vvAlOFSdbQR7/0ibiW",
+	"NHTTXezf9iInNP+3/3rD/popdoPzZmbMU7HrBNBHsXEG9JZ9H+7CSCOJ52n6fNI5/l0bkvG6LoG+yITB",
+	"nVKMK+YJrr9vlfgL8hxmwh5DMjhTANioPdGqCakNqeJu8emFFWwe/YhLZ/t9mbfJeV60uyUX9GoQzlOd",
+	"xquzV8/YWJdq1YpIFG/AWSKQTt4ZtaJc39q3PQWz7Gzjd/Y1sAPgYR6NuUokCBcrSZN/A6y6Y50Ja3iN",
+	"eZHr2IeroDJxCwQaG0Z/ayrfCNZFHQROHdlDYYkCcWDFx73WZIyo0ZkbZRMtc3PVClyhjfzn1/rGdk75",
+	"AnjJEyu+KDhpqTQCo01MMYP/KIdrEAd0plm48bNqf4e/858sX+SXLtlasALG1EUDghLMQgxQkAJtD91i",
+	"zBtCNhWOZoQmcJHc+ahs3+Op1kYYJP/5VJhS140YT40uXYaW89MZ4AqNISc2ssJ5o8qDaDXlS0HnManN",
+	"yk/3zucVDJWbN8TYsPM/ikyPplwlqd3k5cMFr1SJgaE8Pxv+xm5EBiaNeW6d5ZlOijFcI6kmUslcuPN5",
+	"Qlq9WxclGM+0EZtDGQicgAi4l9aWZbOoiqjg1G5L+5xsFZ7q5tVvojFOZG+6k/VlrGnWy9ykokNW2T3q",
+	"RFX3BnTgnSaB0utFM28R8JKvEzhK+uq5RlQxd1SUvcAasaRMNdo/EcNEPdbZeLNRqWZyWeGvn2nyp+Eh",
+	"RT2ovTJ5yY1sDAhZWGe6C9As0yOkAndhYhqJ306mGWdg28yZi9mMZwtSIecyE2a1vi1BC+LXRJHGAsTo",
+	"8kZD+gr5KRi/EjUfgVZi5QKukPkC1YybfBTGULenS9+GXzWTppSjUz9sH6yGOvPsiedx1a/f5OlYsvPj",
+	"DrjTEFEYVLDCTdMK9nrlOX8qzbbxbTsfoC1se7WjVBcglLjNR+MV1miyUjvJD15l8/IIWR0CVgsf9zcf",
+	"maatgD0IR9FmrUm3285M/VyJJWW0ROFJJL9S2uRybCCmt/wTA8P8EZN5DWaCdZUmc5DOgJVnWucoFoBL",
+	"ei9wSdsXyBs6wFecW5pUhHW5wdBGk75acb/ipLBf4rNe59lRoxvXfbutTJ+YZiEJ8aH5o40dO7NAc3QR",
+	"6W07Nu0NWY1mpoxf7TpmH2KAe9mcBXQwGPz4p25tU9FeWVnq3n7lz531cZIZdp4PSW8t9z1IuhmFPTej",
+	"zqQL5j4whOCCH+w4U5K3Vhlz6qYOVH9O2IDusztqdxEGRmerfm+CpfRD9Yc42KYVaxgczKXbFS0RiMZz",
+	"GFyolQT1wlsM6rYkjDxFnKc+Oy0DodCPNidsiRHZfuITH4dMWS6KttS5X6tvd6KOCyfCYVMUdtu4mnLM",
+	"L6jVc9do8NNp2X7w9Nx35Sdv2eO2wekVp+AdePoqXpV27YEnUySj0uG3HKdemp7wJesukOSPhfjEMLpO",
+	"Zz56rGqnWOq5Lkjcmb1/O1v7XRrLN6SobqaZ21oQdzfSLVvZdjSTWa2+pQnh46ndoX7boKJWz/0albWJ",
+	"4j20qWVNPiX6hU0wLwLh9iQomoglIJVVdlnXhzP+tSWHFIMT5K31TtgB8Rgy9vR3BgtoEe72KPQxbiET",
+	"bzKc9xtCIWxCzHuluKx3GTnhnGJIaCSOU5sKVdqCXK+W/DJB6EaiKXl9BY8vv2k6YEseJ7C1jCgvBzrZ",
+	"qFiXrzb8VPGbtEJyDWcQfh8YiGyPtbEG+UHNV8kfvHYa2YotaZ8uWNmrZf3OnRzL8bCDiB3sQQBV0uhT",
+	"PPFZmstf1q/vqoTB5jS45WOzdgEDKNQtlrC8SK2sAbXtqviR7ts5rc4Oqh/jdpael+I2b7DwkNVNUBS+",
+	"RXfJpHoDJp5LnU+ZUAC+5VaxtKgDgIKhiHoIvIR/2wgAngn7qZfqK3fpbsbr3OfQW9BRbcfrF6tp713k",
+	"RUNoKPAfG+bB60EeJozyYHGCNgVlgzRGxETjYwoNxWcMgczYTGP2DVdsytNJmb6Y89Q5gG1iQTXuI4YY",
+	"0om4GfnLZ0YTnY3MYQxxqPvm94fkjUGXDTm9hop6xmFDwhQlEvjFw2FUTJSYqFL2EFdDNxsn2Yk6jcNq",
+	"qUTY5X9om8bwle9cw/bHx+Lm3Df/WGcXh6g2/FrwNJ9ueVdLgc/NSr+hA5IsWg6Z+n3+m44bwjl9XD99",
+	"tqumQ/fkol2SX/1EUs59gKqwFxjTLNhAmBSzFlBgWa4oXx/Byy3NDmty/tank7dLY19qdG0++VKb63Lk",
+	"MjGGhKTFFs1ta5LxWXgbfGdLM6+YLOobUxt6uSbBkgd5b3aH/HAaj2TJ4psySGyuNSJ0ODUicnEIkaUg",
+	"kQvjzOxJrUVGf3HUKjD6dR0DfhB9ce9dY6j0E/UHgk5oBzVZE6MDYJdWXCkUg143oJ48OfsW5n529i1k",
+	"GlPrAML9hyIB6A1KEwycPla1wVIGJAHZj8iTLpO7GlpAOBKG6MAxPbFx3W/HI/t3VAKZWN6UFaqHdnNv",
+	"vvgModfwTPQt1EMFU77diM/9J++AmtMaNZ09y2U9CLJIjSCo964XTNDYn3L1xvQq1i5unKK6TNzfRZ03",
+	"kgCz3ftB3Gl4E+X4Gi6h/d/LTlR5EfstNW73J61iJ+r4xW0cgvVGbAkcuE4PnWuSrTdbZt5z1zbdgDIc",
+	"A6GNKGE+ZE9U7YB0d8j6yv2twXOFimtLdXZJ8rNrYPcYL1Mj2fPU7EUm4JjtrAUE1KS9KrXBw05YQrRA",
+	"zh/OJAl5J4AGXteO2mn+1Zj8tZav8s137ki313TKJb3AL+tYpxuUndqeliYrN47mDaU8gS1lq3KiPtOg",
+	"jBYMHUGUWRNfEo5RiZIQsTjVN5aeAhOOfeZLg0+Rvm6WSlZn27X3rLXBRtQ3O/VS16oxCc8m5jnLjJtf",
+	"0wY95bmg47ATz26VBeSguLjxCASEBQI3AjO+5bVIdrs8O93zJLB2rvvKW0VbGfPrZpmAmrek4U225PKe",
+	"lS02bmSZarDdXXs5DXViZ2RMeXaF+BHQYpNi3KCv7OAcN27A1TGBZzI0OwXsi0AL7As8TV3svPt9FwzI",
+	"unuSRtW4yrvkKT90iGIOZ03lPo7G5ixHlMdUjx42WCpjnrN4nMlcjnk6Qqt6DHKsOw+9dUAetS1yrYzX",
+	"J6lDAvXBwVdH9/YOmfvGFQFykS95PYH9djTeNayiMrldhuPWImKLnUexCmQKAjrzqVhQ0KZbXBTCb6YL",
+	"WPH+CsyqOo7c6llZyZDRRzBMmh+s6q4IOqluEOCfnP2a/faQ+cHR+YvYvf69H//0b/+wf7FzZ29XdtZ0",
+	"4iN2MHivDo28mvFmcc2fjH/7B7xX3hiDV6oaahxjOyOMfAPxoWU+Y/BVe2n9Aj76Gr9pDu/7t3+wMd4K",
+	"9E8bWd2rx0aXF5yyMlfF2ndvpnI8pRbtHaEkmAtAyl2WHJIObePSfYxW0Y3lQ74WteeZd2NvJWI4AJ+N",
+	"KGl1QPBSPNgCao0+aE79DeX0NpFfm3NCEQbGuvNAPrKfbKE82D4uF60h+ewn1d5XkLCguSXHZC0uHYZ/",
+	"Ja9Fc1OAW4zHdMSvxGiqi6YEoW88G7MnOtE2rHAus11j9rbMDrSgUksTcKE6NLKRVKOJrhoTK6bMtuEY",
+	"u4QcBF+N9LxVuKz/+rl9fwVgVxCgEG7NpjwAN4parL2/fVF4jVevZfMxqcfblyd+NZHZIfKYDEbtKQV1",
+	"tBGQ0TW7eqw7Gjh2oIuk4r0nWayYDDa4R6sksx2XDI0cr6MV6KyD/oP7/QYStdmL2ZIUgdAHBSttnEvo",
+	"JHdlHE0O4IvOEAQGIBJt7iDE5asvvzraWNxlJ7rWXoFdQ/Ca4Rg5hs6BAknrQ/ivUBTYuBhI8GlfijD1",
+	"1JnRPMQ/HvZeMyTjT0Qs7bVppphNhNFfr8ZL7/atVr6NcqZjtmB/zS4H7Ffs8uDHP92esLiSTG1/tz95",
+	"xJB4qKrfwX8Pf/zT7Y//QnBYXx198cXeYQ1ajlruRPYftotO1PHttnTC4pyeutaCv567FvHZb8tm30Wd",
+	"51i7rCnJ4rupZpn1hpcOrhP0d/kz6sonLyi9EAFL4/8Q15xcbcsbV71c/wHdXAeHXzb7ud7XOP2XafFd",
+	"Z+cNV6R0ye5mr7+bpLJ1aHdkRq6C3YCa1BbMBplH+7BWen+n4Fb6dPtIVgJy3uWknOOXTfrPikDbpgSm",
+	"Uc10iZ/WFqI+uZrs6GawIfdpaeBb38R1drBqMhGJAkCUkmpQ7BIoMvI2AkUu05+svuUMVfDkRjvIkQoC",
+	"K+vGfHYprwpdmBF8H++KoRFauluc7BUQOzFC1Y1wbABHhph25Z/iNs/4nOp1w9/0dqoJD9f99RZ+UuIK",
+	"czHw3xrnBpJF2XJ12kPVtah6YSZ145KB6lkxBR6jWjpUAdJqL2Jxoaw7ZOQ8SxBXdYEgTM5TYc9eyVxs",
+	"UROlSRpCv9JQxUrnI2fcgm2IMVqMxURt6UDGvU3w481pA0uvycCVtlaKc+8F34zKDIJG22bpZQMtXl/m",
+	"XCoPiBBPpEhTkTXDHcwEV6Mt43Ccrb7JAgDvgNHCh7AFWfOc0n6SzZBANVTb5TiG+TzTt3IG7ZsKLEmj",
+	"n9GVznPXKcgYhisuTI5N3UXKlEwa8qWaQXqvMRnK5dj7Ra3vSUAFlk/EeppqxYbtaOpfkndtvU/Nlehd",
+	"zgF7fMYeHN3/ktnSv4ysnqbfUNCm2alA9TrQqptpl3VrOQSKlBHyjLnQNnBr6eKtQtl5rDEtg6fSVkqO",
+	"bLnehrrHtnJASxEBp/oYPm4kW6rMcF1ZzpjNOSF6NQTx4wtWrFpXDzn+uz0rdu89AX6Ta/a20Lktq1DW",
+	"suLs/mCwEji/MM39/PrlyxeMXkCQn0qU+/0KovHRoBH8K5d5E7jtxVRnOTOUWOeojDs/0ErjUOnBchjW",
+	"q/MnThdaOJ9t2Jij3UWmjpFnvRFiLrJj+86xPSFxv1NXj9aLd/irm2OQfbTG7F85OMfft7wgL11NBOmq",
+	"fPdXps2IrPn72pE/Zpz97cXzb9gL+gi4niaIS50sIhbvp1IJsz8sBoN7Y4X/EfavsU6LmX0UDxXczbOL",
+	"b1GKi+kNaX89tp/zmbCv400G60jGZyIXGQkEm0KmaF5rV7ZSWGkHr39YisWXc8JTTwVgEOdjfbVvW2u9",
+	"LPfdEF5DwmPaglQXae7nhDTOMtZkh2+lGdmK0Tt8DEEGo3YAdPWPm8o9nbuWttih70LxNirxC2yyhz25",
+	"Lt+DzMEiAaF3D+GHyoLBnIIxQ3TDALEhF1jooFdTYjJba141RKa/T0zUncc5NV0MAnQUZtuMODDmNag/",
+	"IFrt3WQyFzHdeHygVbqI2c1UpqR4JDznkFUF68Zp+S8XTKqhcuHhrIuNwOUykPtxf3DPwqudizxb7J2C",
+	"kBnXjHRl51bIw463MMzBYnxnv3d/P8cmyuwxs4rp8sRJ4oZ1pzp38zI9lvKrPVsgFMOBE1KYrjTLtYtn",
+	"wSJRfAe8SptiUm5kxXT1xZGffQPCX7hybRfKd7Q+fYTsvSvOHBabAttN0xmCvHt0rfE0PDRkKqhYyU/g",
+	"fEFbpFJqjILMsRiLrzYC1JlSnsq4CkoAdkhAZeDdCYtdicl4qNz9LjELHNBAZFuIWKEmMqcoFJ0xU8xF",
+	"ZkRiY174ULXqtu+m4fLjfLUqOZ5Wj3iwNnjG3eTBrG5H3nobsccXlQbtw/OwXfvsO9887mDtzG1HPKQa",
+	"FWaNf4SuCF4P2E+lb5q9HCm/Ghkx1ipZ4Zea8IwOBLsUU2lrCswzCYJlxLhHN0AYIswRqIaQFOqNgmrt",
+	"nWj7uosucXA5E1Dm7ErkZPLCmXYLhUkCsOIRUIuy3hCaYCJkQJ5SRgS8x3sr1APcm+WuX9jYciA4e3uO",
+	"Bu8hoSyy1DLOg4oYbzNf2qaqur4jt8XN159sTN+6ELYthTEKWuJWf4HtVLk5ptqv3UKhUg03UAa31xaJ",
+	"6bUrDjtUzdVhI4a4fFkuEidVlEpUpU5sVC0UG2YPDFX5DbxUCzAzUUVaqVQfhh+eXNBB7bPT4KBiuy5z",
+	"x5lTq7WKLcZULSr85XaFBl0FW/b+BWzL+px35MagSK/RSpQL2jtMX594JIJ2eYKby9wufeXNaQ2wK9B5",
+	"1eOwQ4HupXb1PGTp//pPnajzr39qzN1ZDQTiruS2ccHWxeui4KwXQ89bIRxU6+O2FHqWFJF6q61q5zbl",
+	"SRZp65fLdIg2b9tKPkurnovb5u1YuU+3g5Z93g5G7ZxRt4NO+XZ5Ruv3qukW+UXz++7WxU7NTn15S5qi",
+	"IoPDsMGhFfpPl9Ecgvp5Dp6ha4MqnGvFmqpJ5RvrLKOh9LYpJVYFc9hb/m1pS85Dg2wdMKu05LsUtPfC",
+	"svdLtJ07GwdZpLuVXV7jnt4G5WXMG0XEoFIzlvshT3ufJ5WqzIgo5v8OhfAYtVJ67iFrmv01LbI0Nsfr",
+	"b+kAX0rsxJkm1n4oRuMp2Djay/h+F898Q8FD1MDOXJNgI4SlA5+icbpZ2+zKQKNbgRUNv1ndxxpQMJ/X",
+	"Vd1uwF7dAGVDGpMfafvxOYJl98Vvq1T5F0eNtV+2BOfCQzla4Z004u162RwtTwIyv6SC1UEUbLB9kESF",
+	"dasrJGr1uNvRfhiRhbK1Sad0+eqLvHQ+QuQfv6Lh/AOAr7XRDpWbtoLWF2n+WIjkI6DkbllzPKSVTXVw",
+	"uBnNdLYi/nkthO4LbgxoqbGRWLrMIsZXwHQx/8Fla67fZzuvaqfBADfz24rMteVGWINhGHH2xQaPStRB",
+	"u3rts9CZtGKm2Jn7unkuruDIlsqnDc9MxNgWB5l7FLSxqFuL4NWm5DKvfazOQghK8mNCQiOH2oafuhG3",
+	"K7Ly0L29xpTxTQU7u5rVsB2Usx9bQFA2YIfVhhmwTGv587igrXklNHjqP6a/z20T78oHu4Qx3sXivy8A",
+	"VQCHlWtXjdmHaFPGvoOs8HUO+6v3qnFXilR8K3Va4rlvQSAsg1hhYLd5LlJd6/TamXdkYwWcNjx6WVvE",
+	"OTTUTEuN8IQXioAyWxw1YnC0/U9hje1ma6XT/zZEsfqir1vA8Hj9Cifhv4uCRW3eLrU1lFNWKGBJZS2+",
+	"OwC23cne06aMoKuquW3lwB1yxeba5CJhK+oYbQm8f14oKqbacFLdDFbE6ubAjOCbygK40akQZeYPRGnH",
+	"5rp12VooxzHjOcQGdKLy77OLb5FG7orj2z6cqQzP2/abLZB/9cp4+/fgedsHpZ8XQTR6gxMPDcPtm3NF",
+	"xTYmYm0HyFsBz/Ur58/p6py0cA7l4kRlYYf10mihnE77MetmLBua8Dc2F1mJARS9/y1ve5Oatq79ArYq",
+	"2HwHcEEfGNh626j/9eghS4jRK1Zv12zEHRjkx6SWIfFb95VPSnofyubzLOvWySVyB4vdIg0IWrav+rYr",
+	"pHL5AguVZ4vwAqOnC3NdWl9lR1sb5nN/u9whT3fXUNlyQiuPpk9q+cCUcdv0mTDgv1EO38LStiQEW1NT",
+	"y4SYkr3enYU7WYkOf7BKbGiDL5qsMIEGnoRt6n9u5v5NWErB7NYu53tCWn5YcKokW4ycO78Bwj9b7M0w",
+	"6THw+efOlY5I9xAQsGcRjxHVZFds/g0BJBiZMKLIhDsEWQyb9a7BtVcN3tkh7+D9wTWbzG8Ob9bHRXxW",
+	"JoqBUoYBuL5YtDWmo4UAfo39iOImcHBbwxLVHUKMrXXmlf0Q7XGXBAtvI6c4k4awdXwOHkuDgRu0YTij",
+	"uPIp7mHcwzhjQs2a8USwYg7HNg53Oz4hfHOdMSVkPiWjyR0dq+UxtTtX74PjtsTqd7DmIpCndGC8ptnb",
+	"yh7BqfJQtMReMKgs4+M3IqfS4zalvxrzZ1j3ydm3+2dn3zIf2gq+HKnYg8Gf//6/HBwM2C8h5Oty30k4",
+	"ZYB474TOJgdcUoweNNFQkReIRsPQMRBW0rOwAojYK8lvBFF7LmsGPcsG0rI8XC7+ovRQ6bkAu1YlVBLj",
+	"GLuE/wSbmIpcxD2MI0o1dqWViCo95VpDsScYMg51qA4Gti+Klef+W3iHZxadF9Ccxno204rNkfaOybj2",
+	"6MUpOxwM+l/toVWDLqnpUWIhx4yH8ZQFuYtApi0dgI2CPBi3tnFTIJKbV4O2r8uzwW4kuizTVN9gfn2h",
+	"YBoicaeAVgDB8mVu3IybTYHliWstONUQoysi5uGW+el+xpWRNN2xiri2G+p7E4huaXWmsog3d21RXJsk",
+	"vz6T+bQxf7EaC3zFrwVGFWMoIqWyYnbhzunHu9Tvqlopm22Oo23AuFdUyPfm9+V0TzYGa6gvg79a/H25",
+	"nAv+XgWSWkrOK9K0X2IYsMvdZPgWCggvnl+8ZPvXB/vYr9n/Xibv9ss3TRz5hGaX4NwtjwUV4FY6hygj",
+	"QtvsYbzJUvozpGtPBaMyyCwTkwB7jiJ/Tlhcy0D1UeGLHROlm7yZlkLKBMOhcSoYD4IRCFYUkm3DDRrr",
+	"IKwlaraexN0lbd951vUmJPIwbv9DBKrQTdj8XRhTfXe64Z2HvrQy4jix7lyMNdmrl7PUdwHCDEOoNjiO",
+	"aB9s1JLOGCWdwCa7ZAFspb1LycnE1Q5fnb16hmmEzqNkGddnpkZnKbqccCrjyk8YBldZHgvm7VEbUMaS",
+	"qmUl/K2jd6q2qdBe0C7RfpsU/vqND5P6q6FKtZvZsPvboeWFktBfomFt3c1shC/aypZGvZvdTOLbWo/r",
+	"SOwfDKvpYqznopInVyhzXGYY4tIcwyn3XpfjskBtMpOqpWMVOzovlHHZh/SAOjin9vEROj6Mr1eLz06p",
+	"IxhvlW5u7dp30sA85VhPgKge6siOdDckLVN9k53zGdaUYQorgjQFZabtQyN8U2vTxOuXpiyNe8czW8Eg",
+	"Xfjv8kqsqQa1YZW2rRXVxBOWy5L4Gk2V9rdbXLICrAmGtTyxkkRpv8IfrObtC3K7HOzlVVC6juG5UWa2",
+	"5pAth2e/2nJ4m7ZwpXDphcrmBFGfE+okSZSPXm9RhWYp0NctS7l/bnX9dYlKmtBIVUtw70al5N/+wa0s",
+	"oaJ3zw97NjeOPX3+kP11CcGOgs7T579lf12CpAOQFmR0jEwSH2MzFw/LqEpXfzFntoARQwiALoJX5RAE",
+	"N1SuMGOJJDDBrP+YAAVsGUFs3uz/+R//dyqw4BqHtjEdj95ehhmI3KDgPx4Mk8mZralFJaIEJMIMVa7r",
+	"iOQuM5W+FEkPs6Dp53LOwQfRUJWrwMNipYUC2wu2c2Ix1EmddQbIY1auZZAQnRUKkwzrZRdBUMZCkfhR",
+	"kMQiUljXpfWr5jZD/3B2bIdUHS58P6h4D3+1ZK3+tJ1S++WDr6Gni6Ty7Cl2SSVCqr+c264vKFXiIlBx",
+	"7wq9cYeyIOsqE38I72Ap/VPPy+L7eqN91VH+EZyES4u6IfwyePl/EC9W5O1PGmjPjTTk2NqpwvJ7g429",
+	"7wF7aZMpa2G8mRAMkhEDrLATmw6dZzoFfT7j41xkvpBMzi8jlkplTWHAacY8yyS/AuqaF5mqAeh6K/wK",
+	"BN3fD4e3g8Ee/O9X8D9fw/+cwf88gocHj4fD2y8fv/5VI5DuS4g03THgbQfTcnuLz8p0ZAO6yRb6K7ze",
+	"JIdhjG2zpGDEOBN5n11Moa4j8k04KydM5mzMlTXEwkUiz0NLCwj1GLmkZjuRirmg8eTBZ7tpwG4R76Bm",
+	"JiBCY70dnpPLqjCijFU+YQbXytp6yQ5vCQwvEpmzPOMy7b/PBpa6+NE6RRztR28LYX/GjL/mrHI7kMY1",
+	"z4S6SxYMiBhw5zci5EO/X7uXdwxhr0b1LY0l9RW0WmQM2HJboarTAKOYawbodrDjM6l8KTCCU8xhToCB",
+	"FegQzC1I5BIwXBlYTk6ZXn8rR4RHdmu1wC/82w6/rv1xpAZcpfolopIVauxoaY2wZIUouemNVIm+YejZ",
+	"LmugH0SDwcCtCJUWSqnCu04TEPrpBSyDBWvc7AW+dpky2wROhgk2G0O5KiGEnrGWmxCVpeb9yfcHrzLA",
+	"cMkChW+dTbB6R94jGei9EntWFwTf6C9YoY6bhkNzYcMxnIiViGtJBoGuYn/+x//MDlahxvkbtmt1L5GK",
+	"FdFsDrLY9eCvsMCYC21EC45o63aj9qUqGUVh3yv3/0V44a1aCZ2lwCxWO5r9EWXc0iWKvDBh/oprBCVc",
+	"kNlqCmLUyUbmbcEzQcpkW5WxOvAL20v16ZOgz+ovgZ649NOFH031h6ealMqAaH2EqPJtwQkEUPxmoumQ",
+	"u3KLRWoPmf+CaVvDy0ZMTHxancNUC6npTFIYE75seqtiaEYht15+YbdUgua6ihgw4HbrMzuNdWD2Cguo",
+	"W8S3icwjuOr+oO4aJbJ9eYMqj2kGjjUu+9O/69Isgz1rHQpfS2FcH4gUuBUrXkQHJOTBBMukjPIUVs9A",
+	"Za5N9AiPcXg5ikImnaqONth7wPcmp3uPX3//1bu98M+jbf48OGwuh/Kq0Ql8ytANjNY48AU7ROLZ1f5T",
+	"8O4W9r+/m89nr+tlW+4drtM5/6e9/+X19wfRvRXj+ZZnkqux8JV2tkFdRTjOg33z+8OYTJrXtjU2KdQ4",
+	"tJB728bFw2MGDgQWz/WNyKDqgene9iDOZ/Djn2b8tnsLdTxnUvV+Pz6g0ET8E5sxM56mFZMqxdgMVcVE",
+	"cGK7sKV6TBKzbmPdx17YPfsVG0M5oMYIwbZwS+ODli+ucPTUrodD4xh0sOmmQ/1tSRFqQDmYv20DSNWC",
+	"zUAyyXW2sMGhljRZU9DK+KWQ34LPB7GhKg6edZzUju4FfWj/eozf09i942RbfrcNm9vBrPqBw/HacNs1",
+	"3sNETiYiE2osRvOmvf/lQ3SIDH78U3eiC5WgBGr9Hb19+48dWRA2uKn+C5pcLjnAabar91LSiB2HtT3E",
+	"0gYG6k/mb+D9tZZ21JeadwJY7A+/fPgD4yC9UqB4CEppjbVhbdEWp3OdN3izv3fjWt5Z7FgJX7AkLVoA",
+	"XFy6MuIdsSWNjSdtZasLJAhLLTebjd0hXnZeV+9VuLOBx9tezKhEWdg6mCg8Xx8vi9kGrHgQsUaFcQbM",
+	"wr7potxq4XCXAvGhgJtSaGhDakigL1/XyHzbi7e04ZWGlqezwRyxdKeXWaZUMpcQMAdJGxS5O9Yql6qQ",
+	"6ipm3TN4igKEpXPhiEJOaRuiU2i/b88yfZNPfDOVAxM0WZvXDsVcdzlI4bTbW2iqe7tBM6h2scXW7piV",
+	"vS4Y1Ft1IE1hJrgptgMTWZ9v8I2NQ6iVUaKKGGzg/X9lZGih5K7lUg9WAFcO1sioOzPKj+o3bEP2LYdY",
+	"4b+hYqZnXCUyceiHW5yg5FoasSLOHocvXIjFeKq1WZUaRHa5tc240hSuEONyI1C4l6ImKLpjZKY8W2HW",
+	"SHl2hUjT8EoJbJNDiTP82BY0gdKPlN5UqETYIn1jt1qhoGcTekCPKJWIXeyvOhfNCOq87Bi7Mm/kfE7a",
+	"DLFpBFA/YQIrrwdu7YbraYrZiF+Cn3+5r//2X3/45fmjH9yqgES7N+bpuMAKfp4wmCUxt2l0O67CLqV8",
+	"a3ejbKIy3ZXnxJ/CyB9ruxur701jqNxTwU2+RzZYY4+T6YPV4Pb3g/79mP357/8v+Gvx+8PY/lwJfgBx",
+	"mQ8VGgtI3KjHxaMF0VoXuqfpTMiEM5EznvYj9rf9oTqbZnrGc32V9dnX7Msvj1j3cDA47LHDg/u9vjNg",
+	"uLFBhwf7YBT48V8o/AuKOCzZNQKjxS0YKuiYMz7OtDF0Vww421J91cW/huriYc+nv8HjyjR6kQVyhPnS",
+	"958ZBo7ai4cntoIBH6ryWOmJIyboecKDR4mh3jZib6z19JKi8ZkZqnipynO/HsZlV9/0XSeWYlFcW3C4",
+	"XVKpt8yYYgZj45dGpwXiGKcEtUw12OxFGqqVN4nxmUaHJBgkpbIZD0pXCNBMZwKC2jiEoaWTJqLVZ49w",
+	"OUjhpOBHA1pYeTcNVpyxyzEqH0OOF0QD1iNqJvIWAb5MGbRXDWBTGs2Q9nDTv+zfh/jfhX++sH/Tc4P/",
+	"haVuKST6K/cNden/fqKuL95m+d/Vni39fdjw0X+sPVv6e+mjygMMr3sd0oPnZRHxreLQ3Vkt15nZkxrZ",
+	"Q+5LoMs0bcoZJb3NQOzexrCFMhr1XdSp3oQm/1/dPVb9IKp0vZZaVkqm390SQWY3lS2s1SCDg7uy8tgd",
+	"Llgt8EpgEKwPvG0kUkqIxBActCXHuQYT5AqS1+UqsZXi6E66r0DioC8hK+gKythCVYyETWgU1bBUFgez",
+	"PmbUdlmvDV/+zLCLh0OFBgn20J66e8eMA2W28cE3umwSyC2IS4m4ygSMGb4VItEz1oUNeHCf/dKW4TVz",
+	"rgxMgYJwkGrCbn05sOmdFaE9kNUPG8uw1A4aeobHRSbzxQVKjbbAHM9Edlrk0wbtFx7rTP4ROdIx+xrf",
+	"JT1kjMFDtkhfn2GojzlmcZkPA/6JMCEGCxpXUmLgDcyJiU+YEcLWykMQKakhxSS+3XM3a49CfmyAMIm9",
+	"IOHikEohbprn8867d+gMnOjlKQXlHCm93FTKAhQKGVJZ/qSi23uWFAF7h5JSlZ+XYN8iMqzDRQvLvZRX",
+	"lQrPgSABEk0qxwuqEmME+iasVB+RkINNRWye6txENjc6zFk2eLZsfSITsd+eOmhiaJKrSjTXUA3V558/",
+	"CgqyuFRinpN00f/8c3bqxwfihqv7UC1d4wqVgb8Wtj2T3GUlgvZg6YthScZvFN2PeXGZSjMVCbsqZMIx",
+	"Pg/bWlN2xqZbhpVn4IllxFCEBu7pUM0zMRZYB/3E26yAmLi1QHFqqUKNLcBljVoE7zFUtKHQVbnKpWyZ",
+	"ibnguSGtB1BYnEEixtX9xS/YmVbXQuGzodqj8plEiG0obiaYUfyNGI2x15fSPYUauffu3XvAujHpB8fM",
+	"GxRiIGEMenz18gy86LrI50XeZ6UCjYfYUFnufErpDZlgYO9mJESYPoyIKkbTjxOpZC7Yk0ePHu19ef+I",
+	"kTpi+jRsGztJtby/4d9gAqzCbxYnMBwb/EXIp0GFRGlycHuThwl/rLiU3JmKgLKzqjpFEBsutizTOu8h",
+	"DDHoR7ETjzkzMGslUpyRtfUwInrGxjG7ql20+gZKxDew1mOGrBVrCDLm7Aq+KVgki+/BgcumacQM5WLk",
+	"JOjC+o15Dmku6GDD3qAtV+wTiI5QiaGFwIOT6DHRHr9mRLAuxQkbpxL4LARoFtSQyWWaMnmldCbcZPKp",
+	"WLBE47cwy8hCwIAYnTGLoGAYTxL7BW09nkA9CcifiRzhMpG9WCZyqguSJQfZArI2Y7I8b8fsgOWafXHE",
+	"Ti/OnjxhqchzkZmIJfJK5vR13Ad6P4L/OYb/2YsjmhKnklSoOnD7KZwv/JZ1ScpgcXm8416fvVISk6Sh",
+	"ZRuxDa0FQds88zAK7kICP4NGbGYWzgnZylARKYz3rw9ilukiF1YE2YIHnlrwX4wJF8j1h8rlv1A/xzCQ",
+	"H+gP9gNKLD+wq4zDLv8wVD/s7e35/4cXQ3bKfgj3iv2ACL7EsmAitN12iyJbfRJ+hDsV0cuVvLRSwXKA",
+	"RD1mOw25NvuBPX3y7AIjVa6I00Hn2D5xc8+TAl4U2ZE4Ghw5jx7K6ELYlCeLjK9gJcbCdl+VEdgPwMlM",
+	"zieTxm6Ju5WszZx4JHMfS3TCbAJXaJ/JMCWWVbGZaAQklLAfGP5DmhyZEkwbhVUkqdB94RgQjQK3H9sY",
+	"qkcVWYal0uTE0OkgEAWA5ondklqJBWXhug5Vg+hzzLg9YaDzwpX5/HMgM1qJzz+3Gu8M7QLJjIxsbiZD",
+	"JQ0OQSRM3IJoLnOyEWRIRGVukVeMJ2nwtmP6qcgF1oUbqudzoU5fPGFOknTZJkjCMJmMrlA5c6DYpZB5",
+	"zH73GqBOXDv3+gNyhBp7KWih0IQBt+M5fHSIqwufPHkITFWJcW4tnwaI9akLD4vYjKfAMKkQJ9F8PAXX",
+	"GtCkaPWkYUeDgxNiWdI9tZwGhDq7UjQgfPten8X7U8HTfPpHoF37WB6V/jkTeSbHxkIs7Ou5UHwu+ws+",
+	"S+OhQtlDadtJN3YLhwvRc4TpEdpCHBVCywhupGJL1fK7MW4VHdh9+/RXANwduyqQQxXbuuFAKRtq2sfY",
+	"g4mtHNJU4v4YmIQt+Q0VvukpiE8woi8eDA7WlgOHcCWgx/G+v3H7h/tVlArWjYedYSeGmcKXN1Od0ve9",
+	"E+r97OJbNhZpCt22LjAesVjFFpsfQsESNp8ujBzzlHJ3uihqMjYVPBG4zPj4oOeCrGxHX+47US+2wylD",
+	"UGE8myqXu+beFiJbHKNiCWOb83x6LBNifjEN4vhJImZznQs1Xuz9Riww55Js6VZOmklDeH6k5IZLjw2R",
+	"wC2Ns29nxFdtmaB43x61Z+56MLNQOb+N2E2GxrXF3AZaWm4bBP7xTLCjweCEDg8RLmmGCiSgPdvaZeEK",
+	"zTNOlef1xEs9cgyRj8pj6QYGNCf0DBXcuYhA1Oja0hsRtCcwFU2Wa8TeiAXKgkeHh8B37w8GpL4A3Riq",
+	"oYcdoqs07PhamXFGAuJIJvGJNcwXRrArGEiu/ZhFBibZ/lB9o5HaQ2dWoLYAfLYh+CGUMrxKRcKjkwXi",
+	"v9uzouneE4g+4yxcPq0EirE+FgQFP6TabzA2FJXeVI6FRSyi7KAOyK6ZFDnPKIVB5qmoKrkUJ2ks4CyE",
+	"uLlEdj6XnePOvf6gf48iHqdoD3BUDv59JZpCE7H8tgEAvqAU8zzTY2EMEq1UXos++wbFJ0f5+h4JHpzY",
+	"See48zci/7XtqubtOxxgcJ2tXAD/DCneH2ziOx3UTaYp6oIsArV54DBhNe4PBqua8eMikCnFU6TUFWNK",
+	"5/h3r9GJAiWEwcMhr4USGN6WI9TY78qZGyqO7XjGykV+kWk4/6IwlKIobl0CPiN9sL6+J/SKAFaOzFMr",
+	"0KiUyG909ga3yKF4G5ZnhbEFWJf25Jkd2cY9gXHtz1Mua7tRj9BZWnjbw4dY+mDZZn4eKzch5NQrdwL8",
+	"oU5Y8bpaQCXAm3dZSJBq0SLY4tjb5rY79m6QWyx0OHSQs9zwI/YfT589/RDr/zLUaNctPYlPLWmM9bm4",
+	"8tSM21+dDciyLOCXRZbhBO8P7g1V6eSt7wqLZzoRKHjEWOwarkxYWd73hYXjXZVtJpXHbD22hbp5Zo9C",
+	"4jwRqK35QeJIuvG5yLPFHgJJxj1WqFymZSAJtGyAhM40mkKImQfsc6iUzuVYoDNS5kakE6wQj8fDxIF2",
+	"QWqf/SFicgKGiAilAMR8kBkUE19x989pVz4gOS7LwzecV+ye5ZrWc+fzCV/d2/zVBS3tK8WvuSR/+7qj",
+	"XY58zbH2KJErT/bnn6Ol/Pjzz+vG8SW9V2dOfUPBgnCemCK/BRbbjggBgGJI4yBdIkYjkhXnreij2OVi",
+	"qGKZhD/22WOZorVkrGeXUlkH7uk3D09YDAQN74hUNqqIVJxcxxYRBZ5FFkNaVUfQZ78RCyOwKKFU1ngy",
+	"58ZYcYGqRg4V1CwES39QgDDGAofu36VHGXFFabgntQ/gmmK8hVYh9PGVAOmQXoKJ6Dl/C0k6WtUNlYmg",
+	"NAudoReZwlUQNxv7R1LiOo9IJxw03SIItztzxVa8vmAwgRs4ZQe1AZdJflzNx2x3h8I4qXdRc7NlZufd",
+	"tenx9e6uSZ/L067JSmLWqjaDWi2tGg1KwNQv6yOepVKYvHqyo/I+YAZUwxjg5lQG0CYscLl/QLVb7l3c",
+	"bug913fQ9wsODkn5x5W9uOrcZUc+l/P+IHBVHlY8lQdNnsommat6v/WkQjboaq8YmK9i2vpQGRRrXn9A",
+	"vocnF0NxG/geVJyBCcEsiQcg7ztqw/u+5okLb8VPDjZ/8kpxa9IWCX3Ugls+1tmlTBKBsYRHhw82f/FS",
+	"62dcLezozE/EzT3/PqM0E2nAuxjwcMuvX0NQTc3gCj+3Q3SsMn+EiP4AEgDVzEYbxESCv4+4lHfLajUW",
+	"UckvLZI03IqE4proycgaBAi4GlPO0QicCdfSCvEQl3CZrTVtTPkKHX0LIv5h79cqHYhKu//Mr9TgaPMX",
+	"3+j8Maap/IXewVOH8Q9HVOaGghtsjAT6sBzMxIe+nfvoMGp1R9ffSWfuG+ssEQlVYrdRO6V/yymqWaEi",
+	"BweCArx1qgTeKzSgzedCkU667iae4hR+ltcRh/ZUr7RK4DKZT1fyZ3Alg6OH7ruxJfLuBtrLtOoGbnHl",
+	"rNxqwz/n2rzXxaMcOcM4aMQ0akSto7BrzwRr2ZQ+2lhn8gpzbFyAST51rLLEqEylIq8hk2iaj10zIz0B",
+	"n1COGHy2Ic9HXYYcelNy8EpI5QSPPju3rdeG4QFG4Qv/F2ivCMfjAoZsdGRXWLKDbQ0VxsFjdppWwhuG",
+	"cihFYX1gUWMdo54lQH55rNMonpN5YGQX/4RVSgy5HH6Egbaq5lBdidygXwR9/C5GTOaRd7642fqKSWQ+",
+	"83WCuBkqU8xFZgRO/rmDULJ2PUtO6ZxOuVRszBXhuWFKAuseDR5EQ4UOqNjmgZqR/dq6wM4R3qJ7dHgY",
+	"kePTlgtyclLpHPVsCto78ZFsQ0XVSQCK9tnBAJIHDg97kbU7BAFsEJRms1eB2PfQpRqjd2tkty4+pjHQ",
+	"tmK0FHFCfOr3EW0XSrh8B18QBBu0h8WMDBq/YduUuIFogZylghvK1rHf2Kgse9h4Co8X1A5kfrhffEE8",
+	"amamTc4OIVBVT0qzJc/KywI+SN8sHLUUTml1Em4IY10omCbNyTXVs6OQivJPzAhcX+E0KqGTwYsxLR+O",
+	"oWt3iRl5G7kt6hHEmQe6pZ7AbDXCwNuRUIkZKSESWxsgPraTgeFW7hosAHzIrBPZIvq6Ez6VV1P4m/ZT",
+	"8SyDyAb4BTuCueDX0OEJmqCgERtpRGOxI4gwsg0Yd26TbF2Ixc10QZC8V0KJjGPYU2y/Kg1auMi9JvmB",
+	"KOcjR43fU4JANva1ThZ3Jjz4kXmWX42wR1jAJeHl4OPoEmFaPvnusf+nerwil/MFz6eeYNqPIxbXmCNC",
+	"uFSnGK1z9fw7E5wGLQSnM60mqYUwOjpoMaYXfJFqnrzU+inkM9J399ssgCnmVDvnmUgkf7kgEMujw8M2",
+	"H1tPOMhaj1QOnoS/UNHwUT1kDqkcilhYGYokr6AIvBMZ347vQlycpzrvz9VVKyVtB0MKnwkMIERnA3Zm",
+	"rq9iO7MX3/wNkzMwMq5RwF6kOn/xzd98SBUMx7BvV6HBpHspFSdzVhtnMM7yk9L1k98sODiBthUxOkUf",
+	"3OjhTvkHuFIXZTCxFwN9CtSMZ28g88oltHhsv8il704kpmxAFqhKIlsT1BcsmHMlUnYpUn2DCgtdTR9b",
+	"xSlGBqOfhkrxGQqZ1L7PxAmyfKB16yXadL0vvv0I19tcX/3qdqfojk8X+md6oS++/TgXugy4b2dTqVzq",
+	"+h1+spRSBnOiutGQcFjmfwS5bHbCqOpRlAkvtUMKZKbbXN5y5kq2MZ6zuHwel9obaldO1+v12VIUZp+9",
+	"KOdOqTn17DSuFi6FCz36U+TsEyqax3Mb+A4NgkMZS2oTUTipoI8NFbwgDCpuRJpsYVcIOXXRoJT8hNVa",
+	"dJEbmdjKqDY9UCRDRRqgzoiQMU7W7j4LreKU6jSBtJcy58/2gxGvQ3U0eLBaqwsW5Wen15Vj20qxG3yQ",
+	"AVAXq7yx1oY19wk1EYV+2dwyLAHe+aSDfdLBPrjXOkyYwHQ9l98bsJeQC7TkMWt4iuU7d2Cif6YRvdmS",
+	"N8z8rRuWWa5ZbNO1LENy6M8xlVUm1xrZ0BIxtvYTW3eVFFJoSTTWrGCn2DTayMsC4whsTKQeI0AJFpWM",
+	"cLw0pYGJ2BNlrUSvz04rDIXA2lOtrkS2PDOMEXtwjHIsPIEHE0TZHKpzLBZjQhchJokrfUPM0zSReKrx",
+	"eBde+Lsn7jS2n4iwr7TY0ahE8olYfyLWH8GXWk87/aDu1CXExTvW6CmyIeylDHNoUAAwAjmPV8XEflsD",
+	"b/wZBi0soWauULorC/9J+/7p7923zVntjeEMa2zTLdXwqI2aXQHBWX3P2JMgoR+aHaoVKfoWs+2S5+Mp",
+	"JStCIZmwo96Jz5Mfqhl3QUnoY3UIpXBLpyA0dWuDsq5xzGip+HcBPKAseoofse5McFUrOxgxpYfKlXDv",
+	"WViG2ZxnAiUbSkOt5v8e+2SaoUJocsRgdmDk2MQvH24GLYc4SIR4NKiMDxWia//5P/0fNYdxCbbTDxd5",
+	"lOtUZNwiPMcRCYhD5UwRP/7z4YD90hWbYa8u2KMXp+ziu72vjr5gz7B19tVgMHgYYgFV9/FkOTaAhoWY",
+	"lJlMcI0iFyc2VBXoG3zsYglc3NhpmWKKS+uw0yn/wYmpINka3NpTh+5fOV/wKeHnhQjkVeQG5qLPh4rn",
+	"cHgp+gGIvc1j4rj8WJ0lbFxn1kWE7Z4gaqN9jwISEGvHWGA/14tt3iEmkb03bDcaKkQUQTE/04Ru5Hz0",
+	"2KSNwEGrEPSUZ1wZCmewx5xqW+LCHQ0eMGsydpVqyMbj8rRJgg8r0kA+F/5jpHQ+cr/FvcjrOmUQC9w4",
+	"rpiPffL+srKRMEKlbKJmDbLvTrkZTSSEskDq8zFCUYZrbnGMwt0Mgn6gz8rRx7UeBecWAQ04hcqsMDF9",
+	"W4Xc/nmpIU2wzx85fKAJyL2FJOEuP9NFDhf9k8rySWX58KLTOckIvBkZqAQGailBeWlksxsjgDLa/778",
+	"453TcSxJ/EDe/8CKgzedojxzLMRc8RM6zAqeE8dzHoqhUvqmd+yxaYUvVub5WE62fiTI+C11l/lwxqHq",
+	"Kp23YRYkT8HLjtuQL5WSQW3GIkWOoyUtoiI+PHfY14EzAWd1w+EJLZBD6DbO48KMCGNAaWIjqUYI0oRA",
+	"VwotbqYYT+sczwwVMWOdJiJjWok++64Gm0vtQ7whcTV+JUZTXWQWQycQYKSx7SCyLy0g7UREFdUIeg8H",
+	"1mdHgyOHYohxo5lACA14EQ34NzpLzDqX7xP1WFP9ju3YWinGdzZnZK4O89omnXKZm8w0Jfc77MATNCeS",
+	"f+rSCJWvSpjj+fb5gh88mcdtxbqcnnLrP2nhPzkrWd4VuKrcHss7VcE3sZC7dYufGha/eH7xkq3xvscR",
+	"qSuhTaxchwlllS8xl9gShXiJvcDVRUzcoYr/5hF13ZJjxj2L4YarD9B9HoQM3SLjN254iWl0rH+j6+NH",
+	"V8bRUPmsCnKRrNYRSnr4Pg7pkKp+IH2haaCfvNOftIdP2kMbkv/bgoNMslhD++7UTW2xNlvpBDWBPyUo",
+	"hTAPjMRUBzN3ucAMoFX+i2e26w9IAKiLdZ4HO/9P6AB377pL0wDxuHpWwlAL+87K87uNkyAUMdBOCueP",
+	"jW1eoz+pB332QpuckHwoRQz+jS8TZDLEuZV1CslaL3OzdOZd06Q53ga/dA8HB5B/JRDwJCunjumIUWBi",
+	"dcVTyqAM3wjVeBqqIAWzHLq45ePcZvPVxvWZYfb+EB0ZKjdQZYUTjmEeFDIBxtDDwQAzFzNhyHrt61oA",
+	"An5g6KfiDQEaQllX0oQwW96Wbqb6BqeQppjH1men1gBQIrYXSr4taO2lAgGXlFoIF1ljNn3m0HM+hBhD",
+	"jf9EgoudWQPNIp11zFNnXKnt/InfYcSxIGMpUre7NMiuHh9dO7t/Onu/5C7HSOKAU+1/D8fm31t21ydR",
+	"7GcYKIiXx1OjqPS+hSIPlYbalplVpS97pu9ACItcqXHtYWrCJPt4NUIpUdImeDXw2pWWLfzPh7G4nTIz",
+	"F2OwmQfkLKBxLexuQepcOaISN+vg6Mujr+59cfTlBvis1z8JbS/l0U/Gt5/++j9Xbjd2v99W99re49Ic",
+	"OYbs3NKdEhWiFCTJR+8RDYJq0hECQRBGDJOKfPhYyA9tGwii/xbMXFUonRc6TT3wx1BVsOIaESaxTApg",
+	"ceMtPS7DXBAFA+Th6jeIbX0D/gUjctZFn63FW4c+bFFGqwMbnTFo1tUbi8F1P9OZiJ2LQiCmJDyyeDjs",
+	"RmTCYTKwsZ7ZKg5D9RiDT0BQqo7ICOHqp2ETXszWaiyOXbNYroWqhxI4A9LcjNwqQmZhgISx/aINkdO8",
+	"YCsyCt4QWJOA+nJOJz9QJH1Z31e/oNekQUTcXCjXddAdNYIQ7AmT+TEGQaHIDygeGEPiko4w2KlPQiI4",
+	"+ezzPk8gRiOmH2wUBlmMfYhF30U5Ras9nfbN8Ne4h3CgjR45/4H/KRwEovTnIbJKCXkCQ4dT7oqU+5dD",
+	"R6BWVNmi0RZxjg09ws1dZoO7QCmeWE5VDgVugHt1IkSyiofhHdoea/FO4SYPBoPVpfE+NsekzXksmqM+",
+	"QqjHvwwQrL9EWZhYCxxbWOdqOFslFpue7GaMzIrW3qWghtNS2rTOrEUGyF03qDBYwlBZSkdBABOMEVKi",
+	"rDYIFIpsFDXUq888IHogcjt+WtLgY8bZ4eAAvP9cmaDCUYW4Y8hhoWz6jAoKx1FlGagAYiMnaWRl7RJr",
+	"ENIZxSOyrq8eHiFOkN9aJqAwX8RyraE+51DhS6ZH3imofEY+qsjVCrMxjWFiTzVl8phl/GaoEp7zEqAr",
+	"n2b6RkEQxAIicIPKOKx7dHvbo168+SlAjboUC22Rfui+k9XnOFh0NiuMq3tHkIYmpzUt96nEzzpxZiRY",
+	"Ep+r7mC+Un4pUoQD5JlBnj5U3SU8JcOuNJXfCeJx6bDkN7aeqnEF4qikOx+qSijuibskMqnYuIJalrZS",
+	"0S9YUKpmqC4EiDZL1WtyzWZgeMtEjhn6hk8EAYJj63jFXMTNUFFpJJQEDAkWYobDBwAoKnjjIKAOjxgG",
+	"ilBYqDWlfYYWO3UlsnkmSeLg7OLXp3uH9784DgvmEP6iX3zGgftlhrDahkqosfbZDayL9Z5ljmVZxxQU",
+	"OhNw7K3sZFd0xvNcZL0T6miooGZR2BHysbJ0kPFYURm/ocpKl4tcUFG+Cz4TUNsmcmDnflIRSbluyr4s",
+	"V0Jn7/PPHbbaUDF/oT7/nKrT5EWmynkdDg5qoOo4ChRSnanL1pjE1yrbey7mKV9gt1khYrDgMSPGcCtg",
+	"RUs3cnU6zjydh3M6xvI94YtBBYbqdD0BAL9SCvWNad62awxnggHDHthocytsuhZyORMYT+vQ8DOcCQVe",
+	"64whet3R4AGCiNG8qzUbJGgqJb7WRCpppjAeaBlncVp2BmfZEicgKdDBfaAs/nOwW6Pm80Ys/NWCo9ON",
+	"sbDK2FzHPajXpBaVqn9Q5SXL4c0++w5HeUZSyx5Yvo6Z/7hE6BsqW+nK1oukMHKn6ywdz5joGIjYZcdY",
+	"u7dSYKDrGCZRmthVl4lZl8pO87R3YhEB4ro4Fdug76BbJJuXwgmi3aPBoOcNR3hApWGvXj7e+wqKJ6VE",
+	"+vDq7NF1BJAReIeKYyY9CoQ6OvhqMFRdO3VIi7iEOWsPEhkPO/EJe/oYtujs/OljKgYmVAKwA0+lwqwC",
+	"beyBHCpfYBL6in8RO+wB2h5YCnhg3sj5XCQntr50iu0EP/RpXnTIqbgA9mv1R9qwPjvDumbGeycJxVEt",
+	"iALZYpJU/AxrI9KOsB9KvQYC5H/wIpC+Waoy6StNvpEKiz0uBNQ5jF0LMf6B38euOqKLWnEv2wdBQdAV",
+	"D/FzZEjlx/hn9VPSqentWsk495VLEqn8HLE//6f/kw1qLfgqbv5jDBwMqj7bw7T6h6HyiwCFw7D/speS",
+	"edZm6tJhlj5wP9hK3xGVExVswLr0ColiBz2qJbnHngcIjnORwU4ClKgrsm5rnc5R+2SIOVih8AgR6LcN",
+	"76vdhVDiJH8YXkRHIQXPq41Ut6PnLLjwe72HYL269G8TlKrDbmo9BCvW67NzfWM5rS2DBvzaSz/QEv6K",
+	"pBeDz+gehP1KU14KMsiqBd4CFBHoxUoh5MIIqFMLPSViLGc8JfxVrEzn6BoSYYVUKj7o3xd79+Ie5T8x",
+	"oGuF4SoxDrxRY7GSb/g3QFCfqIkPcWWpfCPCIrUEPUaldf2KIGgIpn9JhUKM5TRYFbFawgSI7ILAag1M",
+	"8jPD4E57yooniz5XYXHMpLBLmrglJFLDXVXNcg3pd1urGdbRyuEleyfFAGQfX52Yq4CmWccEEDuCz8Tk",
+	"eXzpaPDgC5KFgpp6Fqh1bqtMti4CScej+f24588MrjGhjsMao5RI69iFBDJEvfFiNtWMt4SVyBbYh5iP",
+	"woJPoBQh/mYi5ptwGpxDtgJGjzyN3NcWYRWagmoZ8AVqLHiRCUyVxCRbmxEUFmu/ElZ79C1i8TdC59Nq",
+	"j6gJeRZPPGYpX6AkdKkpwhpVJnK+BDWnPjPYKBXGyYIYAGjCYuai9dbWYXRnwS15v9+P3b6RTfAWV+F4",
+	"qOI4HqpfWFmGOg6o7nyqc41Swd4B61rWusxCe0MFxztyWhMplFV+4Eh/5GlC5CjMULmtjJSE90X09CAa",
+	"9O9Hg/7gYHAYRWvfGDz4qvmNw+igP4A3Dgf3m9+4Fx3SG0cHB/gGnR73e4Qf3x9E3+0NBkeHK144uHeP",
+	"XrgXHdoFXRF4cF5sn6YVSPy/EYvOsrkOTgaeNC8GIssgPGmnCWM81Qpz3nsWE9pmNMHRKjn0qnHdQT2m",
+	"tmPzWRFoVuFl6kgZwr9qlIEkfgelfsoheskdRqeB+dRyYlYNyEn/rRftufvg3QdDJCmCSN6o4xSjagPL",
+	"C4GcnwrwJ0QiYc4zqZ4KdZVPQ4NyiM338fILz4tNaYVZUWYTuqykzJeO6YK8aWl1ZrX5oVqy4UTkjbIf",
+	"Wdbg4erthlkXRRAr02QrWF7oGI0HrrSjNE7vsb25tUPXoWJlVBp2WjNegALdJrzmUutUcIWHoV1ED0ZP",
+	"FA6tOSvUv0us5k/RPD9DPEltcsb9RZ7IPLjMoQejWBdLHWZjNjgvtihTtdqB4eiNczxzZwA8xhE7od+W",
+	"j6hVDSCzq/fP0LOKfzoTYyExobFK0FYVMN1B1jkv1IdGloFhrabVn+Jnfg6Vqaw/gA7vnV6xuw6soVeq",
+	"RVicfaV6e2zcBViKfLWVofJAqbZenBNDnRXLeC/bclpHUEzOglfYMvoy8z7BsAoOxE83RU+4MjzU6pUE",
+	"GQU1SjsIF7pYKSVTLaHgM4XBkm5TgYNKMkE0hbevn4dRRkP1UGRAW+rwNo7S/PYsCj0RRVpJGDdDlYix",
+	"BJIVsVpiHFaRsSFNvqLIUB30g15uKkNcmfl9zGI3Kag4dBg2MdZFmrCKk7X2+r16jx7IRCobJFP74ij8",
+	"wnowYDFmQLlznS2cg5Wj28VbnjDtvNbW/X4YENkcd+ORiSrp8tZQYU8DgfcEvgcaV9hbVIeiwc8rXXY9",
+	"evEy0kwmyCkjUkI8QrsmGrkCAJuh+iJcnEoO/TGLYQlwy3gKk/8yfDdIzWddL3vDuYjIr+Sz82lqUCqI",
+	"MXeGgF5VIut86BweZCaDoCxAZXIJo5aWxKuZ5bmPifg58kw3ulWsk37+xD5/evZ5UUWMoojPQt1prA3x",
+	"UnuJ3z/whtoJ6A8Sg9AcA+3DfeU11DVHNkxp3ANfIYY8SsPeUlKktDRNjUWdj1ZKmVk0K+csKy1C3ZK7",
+	"g6F+Yv3UQWKX5xZlmKG1MFs9uixgVkbf5v7mfFYPux2qlcFBbH1sEKxolURLsyRY3PByuV3AIXHYXM6E",
+	"C5f0/n4n+iO+G7JaYazvaBVGnnWADFXQa9cIEZDEulAGjiZ3FuyGlyHEsA0yNyKdIIuAXDIUEj0HKfl+",
+	"oTaGCVmQfAs2RuVPRZrY6CHoCxHqPXabda3Zo3HiHVZMJpWYoDBKB70F0FYEch7wRItO45ifzH2A8ZSb",
+	"sFHLyt3UiBMPVTm71fZlu4DvxUbu3gBoR/UTwYBt5l9eHqGjIrNKUUQbRvMpj/+TuenDa79J4k9jrgPD",
+	"01uX4J9PxWwbbr5GL7Yd7X/vfXLv7lgznpRBCUQuI8bHmTZYgJnum0tjtmnOEaq0S4rzCdvAPHxXlpHa",
+	"WiGo9cqkROakcRGMimMABDBZBiuskNKJiq0U1JfJCiC+VKa+xNjsr96XU82Z8yO6m8S5D6kjVNfmk5rw",
+	"s68oWL+lvHZa70xhwJDillpCWAHJmEJgEWOuEjAKQTOs68OPDw6/YpcyN73yLoHtSlFEs7HVlI0YZyK3",
+	"0HTo3iodWipdnPgoC5G5UHN4jiKhDVseqik3UyRVZE5L9ZVhMl8thr2EoX4geAFs+yeSo7DvDQ5P3Kao",
+	"VHfsBgCYg0IR+ed++T8JOR+e+ODdZpwOS0BoLKlomSRLb3vXWSJSkYvW9OVcXOs3NmILWzqx8VNltNvg",
+	"oFcapC1KiwX2QjSSoQpC95wql2G7CbVp5YwmUvEQh+tIxeb8+fcQAl69evKwkf0fLa8WLcunRPKfBSAw",
+	"bMX7X5NMqMR8SPBeY/EsVgD2VpPDAw8NFuobKrCT+/Mf4C7GJtVziBDF0LFLbkQYl4+FD6AXK7FcPMSW",
+	"Si9R7L6IS4N/OVx470aqRN+UHR4OINEcWGWmUxeKaiTi3P74z4fs4iHr3vBMSXVFmRY//vM9fEj2uV5E",
+	"dfTBbnQxFTdTnuXgIMhy1n1y8Zx9+dWXg71DO53vhMmv0P+OZqqDvUNTNh6xg717EKF9uHdoIna+d2Qi",
+	"drR3QArTweCWdcl71EP7hICF5ORGLBfWVD17hjxmGEkUohef1BD1yeSRSq+mDFXsOzhmE54awh2+ljol",
+	"sx/hMcFiecj+AKEKTJnXOkXzIabJTMSNizOGpLj65uRTkVkbmN90CFSl/UBzpirS1MIwU5fSlIvQZ6cU",
+	"w8sOMHy3nBXYNHlywiDkSY0pO9wBAKjwRKDzCdEAuopnGKSeu7UAhoBnEq8Vsww9CuRDjOQai2i50oS+",
+	"UUP12zOGjDwpMmEoNKNSYyJimbgqUvimqdxEs2qKo1nBR9aFVd4NHMvHAFlu6sPPtnWsI67TC/9ZQwTm",
+	"I4xwA/oRGtHBKoEW/uuVYbRwMO4gAvQpzxt6F7cbes/1HfT9a30D3uVF/U5GNTyOKgGNKME0D4j0qlG6",
+	"35vBAw5D7IDDCnTA4UeGDqD7tMpaLDIJiwJX180o8qkLKilJ4ydIgbsXix5mcpI7icNm3rsLjUV80Idl",
+	"xYwaM4fNqXLeD1UamqSuD1nmHbVt6KUSaED9xrXA3JItRCzJ+A25zkpZB6WU41B2sMm0ZIQlVobJHILR",
+	"aYcHJBMNVSAK0Tr7iCDXGooedCsE2rRTYSvRU9whZtenwLvPG4QRpXMa9Trmt7JE/Cce+IkH/g/MA+WM",
+	"X4l9c331q9tZWmWADbkTy8wOScMnNvYhykmXpJfCdJB2R4yo2B1zJehbjIsMrIZAFS8Fz0R2WuTTzvHv",
+	"Xr977Tus34cnQQ52QXWvgyJlQchHt1TGTa9fnnf4qiFt7TEh0YRtuYtGHvgguBG4qAmatGuy3OgTdS0y",
+	"I1iJbx7U6a4mqIftla83NfrbU1edB8YS1rSu4keKm6aPyxCkKvhR5AMNgrgfzzfHJW5SpRfrXlvqprnu",
+	"ZlTGJZVYJ/VyLb71t+OGhglzGYGDLYahFy1kxkp4ZzbXqRxLES6r/aCp1RdPyKoVvk4PGt5+Cn4dYTwQ",
+	"E/5zJvJMjt20pGGJHvu8uEoqHG3r63f/fQA=",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
