@@ -44,7 +44,7 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 			return nil, lab.FieldError(lab.Pointer("analytes", i, "name"), "analyte %q is listed twice", a.Name)
 		}
 		seen[string(a.Name)] = true
-		in.Analytes = append(in.Analytes, lab.Analyte{Name: string(a.Name), Unit: string(a.Unit)})
+		in.Analytes = append(in.Analytes, lab.Analyte{Name: string(a.Name), Unit: string(a.Unit), Quant: quantFrom(a.Quant)})
 	}
 	m, created, err := s.lab.DefineMethod(ctx, p, in)
 	if err != nil {
@@ -190,7 +190,7 @@ func methodOut(m *lab.Method) oapi.Method {
 		out.ExpiredStandards = &adv
 	}
 	for _, a := range m.Analytes {
-		out.Analytes = append(out.Analytes, oapi.Analyte{Name: oapi.Identifier(a.Name), Unit: oapi.Unit(a.Unit)})
+		out.Analytes = append(out.Analytes, oapi.Analyte{Name: oapi.Identifier(a.Name), Unit: oapi.Unit(a.Unit), Quant: quantOut(a)})
 	}
 	return out
 }

@@ -95,6 +95,8 @@ func resultsOut(rs []lab.Result) []oapi.SampleResult {
 			Interval:     oapi.Interval{Low: r.IntervalLow, High: r.IntervalHigh, Level: r.IntervalLevel, Bounded: r.IntervalBounded},
 			ReleaseState: oapi.ReleaseState(r.ReleaseState), ReleaseReason: r.ReleaseReason,
 			StateChangedAt: oapi.NewTimestamp(r.StateChangedAt), CreatedAt: oapi.NewTimestamp(r.CreatedAt), Actor: r.CreatedBy,
+			Reported: jsonPtr[oapi.ReportedValue](r.Reported), InternalStandard: jsonPtr[oapi.ISCheck](r.ISCheck),
+			Sequence: jsonPtr[oapi.SequenceRecord](r.Sequence),
 		})
 	}
 	return out

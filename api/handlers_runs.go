@@ -135,10 +135,11 @@ func runInput(body *oapi.RunRequest) lab.RunInput {
 		AcquiredAt: body.AcquiredAt.Time,
 		Operator:   deref(body.Operator),
 		Standards:  make([]lab.Standard, 0, len(body.Standards)),
+		Sequence:   sequenceFrom(body.Sequence),
 	}
 	for _, st := range body.Standards {
 		in.Standards = append(in.Standards, lab.Standard{Analyte: string(st.Analyte), Level: string(st.Level),
-			Concentration: st.Concentration, Responses: st.Responses})
+			Concentration: st.Concentration, Responses: st.Responses, ISResponses: zeroIfNil(st.IsResponses)})
 	}
 	if body.StandardMaterials != nil {
 		in.Materials = *body.StandardMaterials
@@ -150,7 +151,8 @@ func runInput(body *oapi.RunRequest) lab.RunInput {
 			if sm.Dilution != nil {
 				d = *sm.Dilution
 			}
-			in.Samples = append(in.Samples, lab.Sample{ID: string(sm.ID), Analyte: string(sm.Analyte), Responses: sm.Responses, Dilution: d})
+			in.Samples = append(in.Samples, lab.Sample{ID: string(sm.ID), Analyte: string(sm.Analyte), Responses: sm.Responses, Dilution: d,
+				ISResponses: zeroIfNil(sm.IsResponses), Prep: prepFrom(&sm)})
 		}
 	}
 	return in

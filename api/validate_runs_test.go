@@ -65,9 +65,9 @@ func TestRunFastPathMatchesSpec(t *testing.T) {
 	}{
 		// standard_materials is not read by the fast path: a body with it
 		// gives up there (an unknown member) and goes to the validator.
-		{"RunRequest members", refs(run), "acquired_at= instrument=Identifier method=Identifier operator=Operator samples= standard_materials= standards="},
-		{"StandardInput members", refs(std), "analyte=Identifier concentration=Concentration level=Identifier responses=Responses"},
-		{"RunSampleInput members", refs(smp), "analyte=Identifier dilution=Dilution id=Identifier responses=Responses"},
+		{"RunRequest members", refs(run), "acquired_at= instrument=Identifier method=Identifier operator=Operator samples= sequence=RunSequenceInput standard_materials= standards="},
+		{"StandardInput members", refs(std), "analyte=Identifier concentration=Concentration is_responses= level=Identifier responses=Responses"},
+		{"RunSampleInput members", refs(smp), "analyte=Identifier dilution=Dilution dry_fraction= final_volume= final_volume_unit=Unit id=Identifier is_responses= responses=Responses sample_amount= sample_amount_unit=Unit"},
 		{"RunRequest required", run.Required, []string{"method", "instrument", "acquired_at", "standards"}},
 		{"StandardInput required", std.Required, []string{"analyte", "level", "concentration", "responses"}},
 		{"RunSampleInput required", smp.Required, []string{"id", "analyte", "responses"}},

@@ -91,6 +91,7 @@ func fitRun(m *Method, in *RunInput) ([]CurveInput, error) {
 	concAt := map[concKey]string{} // level label holding each concentration
 	var order []string
 	points := map[string][]calib.Point{}
+	calIS, highest := map[string][]float64{}, map[string]float64{}
 	for i, st := range in.Standards {
 		a := st.Analyte
 		if _, ok := m.Analyte(a); !ok {
@@ -107,9 +108,16 @@ func fitRun(m *Method, in *RunInput) ([]CurveInput, error) {
 		if _, ok := points[a]; !ok {
 			order = append(order, a)
 		}
-		for _, y := range st.Responses {
+		an, _ := m.Analyte(a)
+		ys, err := isRatios(an, st.Responses, st.ISResponses, Pointer("standards", i, "is_responses"))
+		if err != nil {
+			return nil, err
+		}
+		for _, y := range ys {
 			points[a] = append(points[a], calib.Point{Level: st.Level, X: st.Concentration, Y: y})
 		}
+		calIS[a] = append(calIS[a], st.ISResponses...)
+		highest[a] = max(highest[a], st.Concentration)
 	}
 	type sampleKey struct{ analyte, id string }
 	seenSample := map[sampleKey]bool{}
@@ -126,6 +134,16 @@ func fitRun(m *Method, in *RunInput) ([]CurveInput, error) {
 		if _, ok := points[a]; !ok {
 			return nil, FieldError(Pointer("samples", i, "analyte"), "the run has no standards for %q to quantify this sample against", a)
 		}
+		an, _ := m.Analyte(a)
+		if _, err := isRatios(an, sm.Responses, sm.ISResponses, Pointer("samples", i, "is_responses")); err != nil {
+			return nil, err
+		}
+		if err := checkPrep(sm.Prep, fmt.Sprintf("/samples/%d", i)); err != nil {
+			return nil, err
+		}
+	}
+	if err := checkSequence(in.Sequence, in.Samples); err != nil {
+		return nil, err
 	}
 	opts := m.Options()
 	curves := make([]CurveInput, 0, len(order))
@@ -139,7 +157,7 @@ func fitRun(m *Method, in *RunInput) ([]CurveInput, error) {
 			}
 			rep = calib.FailedReport(points[a], opts, err)
 		}
-		curves = append(curves, CurveInput{Analyte: a, Unit: an.Unit, Report: rep})
+		curves = append(curves, CurveInput{Analyte: a, Unit: an.Unit, Report: rep, Rules: an, CalibratorIS: calIS[a], Highest: highest[a]})
 	}
 	return curves, nil
 }

@@ -15,6 +15,10 @@ import (
 type Analyte struct {
 	Name string `json:"name"`
 	Unit string `json:"unit"`
+	// Quant is the analyte's internal standard and reporting rules
+	// (lab/quant.go); zero for an external-standard analyte reported as
+	// x̂0.
+	Quant Quant `json:"quant,omitzero"`
 }
 
 // MethodInput is a method as an administrator defines it. Acceptance must be
@@ -117,6 +121,9 @@ func CheckMethod(in MethodInput) error {
 			return FieldError(fmt.Sprintf("/analytes/%d/name", i), "analyte %q is listed twice", a.Name)
 		}
 		seen[a.Name] = true
+		if err := checkAnalyteQuant(i, a); err != nil {
+			return err
+		}
 	}
 	if err := in.QC.Check(); err != nil {
 		return err

@@ -167,6 +167,10 @@ type Result struct {
 	StateChangedAt  time.Time
 	CreatedAt       time.Time
 	CreatedBy       string
+	// Reported and ISCheck are the JSON of ReportedValue and ISRecord; nil
+	// when the analyte has no reporting rules or internal standard.
+	Reported, ISCheck []byte
+	Sequence          []byte // SequenceRecord JSON; nil without a sequence
 }
 
 // RunWriteStats counts CreateRun's writes since the service started: the

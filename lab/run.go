@@ -16,6 +16,9 @@ type Standard struct {
 	Level         string    `json:"level"`
 	Concentration float64   `json:"concentration"`
 	Responses     []float64 `json:"responses"`
+	// ISResponses holds the internal standard's response of each reading,
+	// when the analyte's method names one (lab/quant.go).
+	ISResponses []float64 `json:"is_responses,omitempty"`
 }
 
 // Sample is one unknown posted with a run.
@@ -27,6 +30,11 @@ type Sample struct {
 	// AcquiredAt is when a sample posted after its run was acquired; nil for
 	// a sample posted with its run, which was acquired with it.
 	AcquiredAt *time.Time `json:"acquired_at,omitempty"`
+	// ISResponses holds the internal standard's response of each reading,
+	// when the analyte's method names one.
+	ISResponses []float64 `json:"is_responses,omitempty"`
+	// Prep is the sample's preparation for its reported value.
+	Prep Prep `json:"prep,omitzero"`
 }
 
 // RunInput is a run as received (whatever its format) and, once Ingest has
@@ -51,6 +59,8 @@ type RunInput struct {
 	// Materials names the standard materials (codes) the run's standards
 	// were made from; see addStandardsChecks.
 	Materials []string
+	// Sequence is the run's injection order, nil when it was not given.
+	Sequence *RunSequence
 }
 
 // CurveInput is one fitted curve of a run, fitted by Ingest before
@@ -60,6 +70,12 @@ type CurveInput struct {
 	Analyte string
 	Unit    string
 	Report  *calib.Report
+	// Rules is the method's analyte (its internal standard and reporting
+	// rules); CalibratorIS the IS responses of its standards; Highest its
+	// highest standard's concentration.
+	Rules        Analyte
+	CalibratorIS []float64
+	Highest      float64
 }
 
 // RunCreated is what CreateRun stored; it is also the response body kept for

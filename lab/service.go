@@ -134,6 +134,9 @@ func (s *Service) Verify(ctx context.Context, p Principal, in VerificationInput)
 // AddSamples quantifies samples posted after their run against its curves
 // on behalf of p.
 func (s *Service) AddSamples(ctx context.Context, p Principal, runID string, samples []Sample) ([]Result, error) {
+	if err := s.refuseLateISSamples(ctx, runID, samples); err != nil {
+		return nil, err
+	}
 	received := s.now().UTC()
 	samples = slices.Clone(samples)
 	for i, sm := range samples {

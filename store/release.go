@@ -69,7 +69,10 @@ func refreshCurveResults(ctx context.Context, tx pgx.Tx, id, cause string, event
 	if err != nil {
 		return 0, err
 	}
-	rows, err := tx.Query(ctx, `SELECT id, acquired_at, release_state, release_reason FROM sample_results WHERE curve_id = $1 ORDER BY id`, id)
+	// A result withheld for its internal standard or by its sequence stays
+	// withheld whatever its curve's review and checks say.
+	rows, err := tx.Query(ctx, `SELECT id, acquired_at, release_state, release_reason FROM sample_results
+WHERE curve_id = $1 AND NOT (flags && $2::text[]) ORDER BY id`, id, []string{lab.FlagISOutsideWindow, lab.FlagSequenceWithheld})
 	if err != nil {
 		return 0, classify("select results of curve "+id, err)
 	}

@@ -20,14 +20,18 @@ type pendingResult struct {
 	q          lab.Quantity
 	state      string
 	reason     string
+	// reported and isCheck are the result's reported value and IS check
+	// (JSON), nil when its analyte has no such rules.
+	reported, isCheck []byte
+	sequence          []byte // its place in the run's sequence (JSON), nil without one
 }
 
 const sqlInsertResult = `
 INSERT INTO sample_results (run_sample_id, curve_id, run_id, sample_id, analyte, unit, acquired_at, responses, dilution,
                             mean_response, concentration, standard_error, interval_low, interval_high, interval_level,
-                            interval_bounded, interval_method, flags, release_state, release_reason, created_by)
+                            interval_bounded, interval_method, flags, release_state, release_reason, created_by, reported, is_check, sequence)
 SELECT s.id, $3, s.run_id, s.sample_id, s.analyte, $4, $5, s.responses, s.dilution,
-       $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17
+       $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19, $20
 FROM run_samples s WHERE s.run_id = $1 AND s.position = $2
 RETURNING id`
 
@@ -41,7 +45,7 @@ func insertResults(ctx context.Context, tx pgx.Tx, runID string, rs []pendingRes
 	for _, r := range rs {
 		q := r.q
 		b.Queue(sqlInsertResult, runID, r.position, r.curveID, r.unit, r.acquiredAt, q.Mean, q.Conc, q.SE,
-			q.Low, q.High, q.Level, q.Bounded, q.Method, q.Flags, r.state, r.reason, actor)
+			q.Low, q.High, q.Level, q.Bounded, q.Method, q.Flags, r.state, r.reason, actor, r.reported, r.isCheck, r.sequence)
 	}
 	br := tx.SendBatch(ctx, b)
 	for _, r := range rs {
@@ -60,14 +64,14 @@ func insertResults(ctx context.Context, tx pgx.Tx, runID string, rs []pendingRes
 
 const resultColumns = `id, curve_id, run_id, sample_id, analyte, unit, acquired_at, responses, dilution, mean_response,
 concentration, standard_error, interval_low, interval_high, interval_level, interval_bounded, interval_method, flags,
-release_state, release_reason, state_changed_at, created_at, created_by`
+release_state, release_reason, state_changed_at, created_at, created_by, reported, is_check, sequence`
 
 func scanResult(row pgx.CollectableRow) (lab.Result, error) {
 	var r lab.Result
 	err := row.Scan(&r.ID, &r.CurveID, &r.RunID, &r.SampleID, &r.Analyte, &r.Unit, &r.AcquiredAt, &r.Responses,
 		&r.Dilution, &r.MeanResponse, &r.Concentration, &r.StandardError, &r.IntervalLow, &r.IntervalHigh,
 		&r.IntervalLevel, &r.IntervalBounded, &r.IntervalMethod, &r.Flags, &r.ReleaseState, &r.ReleaseReason,
-		&r.StateChangedAt, &r.CreatedAt, &r.CreatedBy)
+		&r.StateChangedAt, &r.CreatedAt, &r.CreatedBy, &r.Reported, &r.ISCheck, &r.Sequence)
 	return r, err
 }
 

@@ -221,7 +221,7 @@ ORDER BY u.n`
 	sqlGroupInsertResult = `
 WITH r AS (` + sqlInsertResult + `, release_state, release_reason)
 INSERT INTO result_events (result_id, kind, cause, release_state, previous_state, reason)
-SELECT r.id, '` + lab.EventCreated + `', $18, r.release_state, NULL, r.release_reason FROM r`
+SELECT r.id, '` + lab.EventCreated + `', $21, r.release_state, NULL, r.release_reason FROM r`
 )
 
 // runRows queues the rows of every run of group, table by table: with
@@ -304,10 +304,14 @@ func runRows(group []*runWrite, claims bool) (*pgx.Batch, error) {
 			aActors, aActions, aTypes = append(aActors, a.actor), append(aActions, a.action), append(aTypes, a.entityType)
 			aIDs, aDetails = append(aIDs, a.entityID), append(aDetails, a.detail)
 		}
-		for _, p := range runResults(in, w.curves) {
+		pending, err := runResults(in, w.curves)
+		if err != nil {
+			return nil, err
+		}
+		for _, p := range pending {
 			q := p.q
 			results.Queue(sqlGroupInsertResult, w.runID, p.position, p.curveID, p.unit, p.acquiredAt, q.Mean, q.Conc, q.SE,
-				q.Low, q.High, q.Level, q.Bounded, q.Method, q.Flags, p.state, p.reason, in.Actor, lab.CauseRunCreate)
+				q.Low, q.High, q.Level, q.Bounded, q.Method, q.Flags, p.state, p.reason, in.Actor, p.reported, p.isCheck, p.sequence, lab.CauseRunCreate)
 		}
 	}
 	if claims && len(kKeys) > 0 {

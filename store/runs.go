@@ -15,15 +15,16 @@ import (
 
 // storedPayload is the normalised run kept in runs.payload.
 type storedPayload struct {
-	Method         string         `json:"method"`
-	MethodRevision int            `json:"method_revision"`
-	Instrument     string         `json:"instrument"`
-	AcquiredAt     time.Time      `json:"acquired_at"`
-	Operator       string         `json:"operator,omitempty"`
-	SourceFormat   string         `json:"source_format"`
-	Standards      []lab.Standard `json:"standards"`
-	Samples        []lab.Sample   `json:"samples"`
-	Materials      []string       `json:"standard_materials,omitempty"`
+	Method         string           `json:"method"`
+	MethodRevision int              `json:"method_revision"`
+	Instrument     string           `json:"instrument"`
+	AcquiredAt     time.Time        `json:"acquired_at"`
+	Operator       string           `json:"operator,omitempty"`
+	SourceFormat   string           `json:"source_format"`
+	Standards      []lab.Standard   `json:"standards"`
+	Samples        []lab.Sample     `json:"samples"`
+	Materials      []string         `json:"standard_materials,omitempty"`
+	Sequence       *lab.RunSequence `json:"sequence,omitempty"`
 }
 
 // preparedCurve is a curve ready to insert: ids assigned, report marshalled.
@@ -280,10 +281,18 @@ func runAudits(in *lab.RunInput, runID string, curves []preparedCurve) ([]auditR
 
 // runResults quantifies the samples of a new run against its new curves,
 // each pending review.
-func runResults(in *lab.RunInput, curves []preparedCurve) []pendingResult {
+func runResults(in *lab.RunInput, curves []preparedCurve) ([]pendingResult, error) {
 	byAnalyte := map[string]*preparedCurve{}
 	for i := range curves {
 		byAnalyte[curves[i].in.Analyte] = &curves[i]
+	}
+	seqs := map[string]map[string]lab.SequenceOutcome{}
+	for i := range curves {
+		o, err := lab.SequenceOutcomes(in, &curves[i].in)
+		if err != nil {
+			return nil, err
+		}
+		seqs[curves[i].in.Analyte] = o
 	}
 	var out []pendingResult
 	for i, s := range in.Samples {
@@ -297,10 +306,23 @@ func runResults(in *lab.RunInput, curves []preparedCurve) []pendingResult {
 			at = *s.AcquiredAt
 		}
 		state, reason := lab.ReleaseOf(f, at)
+		q := lab.Quantify(c.in.Report, lab.QuantResponses(&c.in, &s), s.Dilution)
+		o, err := lab.Outcome(&c.in, &s, &q)
+		if err != nil {
+			return nil, err
+		}
+		so := seqs[s.Analyte][s.ID]
+		switch {
+		case o.Withheld != "":
+			state, reason = lab.ReleaseWithheld, o.Withheld
+		case so.Withheld != "":
+			state, reason = lab.ReleaseWithheld, so.Withheld
+			q.Flags = append(q.Flags, lab.FlagSequenceWithheld)
+		}
 		out = append(out, pendingResult{position: i, curveID: c.id, unit: c.in.Unit, acquiredAt: at,
-			q: lab.Quantify(c.in.Report, s.Responses, s.Dilution), state: state, reason: reason})
+			q: q, state: state, reason: reason, reported: o.Reported, isCheck: o.ISCheck, sequence: so.Record})
 	}
-	return out
+	return out, nil
 }
 
 // GetRun returns run id as stored.

@@ -160,6 +160,60 @@ func (e HealthStatus) Valid() bool {
 	}
 }
 
+// Defines values for InjectionInputJudged.
+const (
+	Fail InjectionInputJudged = "fail"
+	Pass InjectionInputJudged = "pass"
+)
+
+// Valid indicates whether the value is a known member of the InjectionInputJudged enum.
+func (e InjectionInputJudged) Valid() bool {
+	switch e {
+	case Fail:
+		return true
+	case Pass:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for InjectionInputKind.
+const (
+	CalibrationBlank    InjectionInputKind = "calibration_blank"
+	CalibrationStandard InjectionInputKind = "calibration_standard"
+	Ccb                 InjectionInputKind = "ccb"
+	Ccv                 InjectionInputKind = "ccv"
+	Icv                 InjectionInputKind = "icv"
+	MethodBlank         InjectionInputKind = "method_blank"
+	QcSample            InjectionInputKind = "qc_sample"
+	Sample              InjectionInputKind = "sample"
+)
+
+// Valid indicates whether the value is a known member of the InjectionInputKind enum.
+func (e InjectionInputKind) Valid() bool {
+	switch e {
+	case CalibrationBlank:
+		return true
+	case CalibrationStandard:
+		return true
+	case Ccb:
+		return true
+	case Ccv:
+		return true
+	case Icv:
+		return true
+	case MethodBlank:
+		return true
+	case QcSample:
+		return true
+	case Sample:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for MethodExpiredStandards.
 const (
 	MethodExpiredStandardsAdvisory MethodExpiredStandards = "advisory"
@@ -268,6 +322,24 @@ func (e ReleaseState) Valid() bool {
 	}
 }
 
+// Defines values for ReportedValueFactorsOp.
+const (
+	Empty ReportedValueFactorsOp = "×"
+	N1    ReportedValueFactorsOp = "÷"
+)
+
+// Valid indicates whether the value is a known member of the ReportedValueFactorsOp enum.
+func (e ReportedValueFactorsOp) Valid() bool {
+	switch e {
+	case Empty:
+		return true
+	case N1:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for ResultEventKind.
 const (
 	ResultEventCreated      ResultEventKind = "created"
@@ -340,6 +412,27 @@ func (e Scope) Valid() bool {
 	case ScopeResultsRead:
 		return true
 	case ScopeRunsWrite:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for SequenceRecordState.
+const (
+	Provisional SequenceRecordState = "provisional"
+	Reportable  SequenceRecordState = "reportable"
+	Withheld    SequenceRecordState = "withheld"
+)
+
+// Valid indicates whether the value is a known member of the SequenceRecordState enum.
+func (e SequenceRecordState) Valid() bool {
+	switch e {
+	case Provisional:
+		return true
+	case Reportable:
+		return true
+	case Withheld:
 		return true
 	default:
 		return false
@@ -557,8 +650,47 @@ type Analyte struct {
 	// Name A name of an instrument, analyte, method, level or sample.
 	Name Identifier `json:"name"`
 
+	// Quant An analyte's internal standard and reporting rules. With an internal standard the run's
+	// standards and samples carry `is_responses` beside `responses`, the curve is fitted on the
+	// response ratio A_x/A_is against the analyte's concentration, and a sample whose IS
+	// response lies outside the window (percent of the calibrators' mean IS response; default
+	// 60–125 %, common ICP-MS practice, from memory) is flagged and withheld. The reported
+	// value is x̂0 × dilution × final volume ÷ sample amount ÷ dry fraction in the reporting
+	// unit, rounded and qualified. The laboratory's accreditation, regulator and SOP come
+	// first; a qualified person reviews every result.
+	Quant *AnalyteQuant `json:"quant,omitempty"`
+
 	// Unit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
 	Unit Unit `json:"unit"`
+}
+
+// AnalyteQuant An analyte's internal standard and reporting rules. With an internal standard the run's
+// standards and samples carry `is_responses` beside `responses`, the curve is fitted on the
+// response ratio A_x/A_is against the analyte's concentration, and a sample whose IS
+// response lies outside the window (percent of the calibrators' mean IS response; default
+// 60–125 %, common ICP-MS practice, from memory) is flagged and withheld. The reported
+// value is x̂0 × dilution × final volume ÷ sample amount ÷ dry fraction in the reporting
+// unit, rounded and qualified. The laboratory's accreditation, regulator and SOP come
+// first; a qualified person reviews every result.
+type AnalyteQuant struct {
+	// Decimals Round to this many decimals instead of significant figures.
+	Decimals       *int     `json:"decimals,omitempty"`
+	DetectionLimit *float64 `json:"detection_limit,omitempty"`
+
+	// InternalStandard A name of an instrument, analyte, method, level or sample.
+	InternalStandard *Identifier `json:"internal_standard,omitempty"`
+	IsWindowHighPct  *float64    `json:"is_window_high_pct,omitempty"`
+	IsWindowLowPct   *float64    `json:"is_window_low_pct,omitempty"`
+
+	// Qualifiers The laboratory's qualifier codes and words; each one left out takes the service's default.
+	Qualifiers     *QualifierSet `json:"qualifiers,omitempty"`
+	ReportingLimit *float64      `json:"reporting_limit,omitempty"`
+
+	// ReportingUnit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
+	ReportingUnit *Unit `json:"reporting_unit,omitempty"`
+
+	// SignificantFigures Default 3 (when `decimals` is absent).
+	SignificantFigures *int `json:"significant_figures,omitempty"`
 }
 
 // AuditEvent defines model for AuditEvent.
@@ -938,8 +1070,47 @@ type Health struct {
 // HealthStatus defines model for Health.Status.
 type HealthStatus string
 
+// ISCheck A sample's internal-standard response against the calibrators' mean IS response.
+type ISCheck struct {
+	CalibratorMean   float64 `json:"calibrator_mean"`
+	Detail           string  `json:"detail"`
+	HighPct          float64 `json:"high_pct"`
+	InternalStandard string  `json:"internal_standard"`
+	LowPct           float64 `json:"low_pct"`
+	Passed           bool    `json:"passed"`
+	RecoveryPct      float64 `json:"recovery_pct"`
+	Response         float64 `json:"response"`
+	Source           string  `json:"source"`
+}
+
 // Identifier A name of an instrument, analyte, method, level or sample.
 type Identifier = string
+
+// InjectionInput defines model for InjectionInput.
+type InjectionInput struct {
+	// Analyte An ICV or CCV's analyte (a judged check without one applies to every analyte).
+	Analyte *Identifier `json:"analyte,omitempty"`
+
+	// ID A sample's id (for `sample` and `qc_sample`, a sample of the run), or the check's own name.
+	ID          Identifier `json:"id"`
+	IsResponses *Responses `json:"is_responses,omitempty"`
+
+	// Judged A verdict reached elsewhere (required for blanks).
+	Judged   *InjectionInputJudged `json:"judged,omitempty"`
+	Kind     InjectionInputKind    `json:"kind"`
+	Nominal  *float64              `json:"nominal,omitempty"`
+	Position int                   `json:"position"`
+
+	// Responses An ICV or CCV's readings, quantified against the run's curve of its analyte.
+	Responses *Responses `json:"responses,omitempty"`
+	Time      *Timestamp `json:"time,omitempty"`
+}
+
+// InjectionInputJudged A verdict reached elsewhere (required for blanks).
+type InjectionInputJudged string
+
+// InjectionInputKind defines model for InjectionInput.Kind.
+type InjectionInputKind string
 
 // InstrumentPredictionRequest defines model for InstrumentPredictionRequest.
 type InstrumentPredictionRequest struct {
@@ -1243,6 +1414,14 @@ type ProblemField struct {
 	Pointer string `json:"pointer"`
 }
 
+// QualifierSet The laboratory's qualifier codes and words; each one left out takes the service's default.
+type QualifierSet struct {
+	BelowRl   *ResultQualifier `json:"below_rl,omitempty"`
+	Estimated *ResultQualifier `json:"estimated,omitempty"`
+	IsFailure *ResultQualifier `json:"is_failure,omitempty"`
+	OverRange *ResultQualifier `json:"over_range,omitempty"`
+}
+
 // Range Working range, from the lowest to the highest accepted non-zero standard (a blank in the fit does not extend it); null when there is none.
 type Range struct {
 	High *float64 `json:"high"`
@@ -1287,6 +1466,43 @@ type ReplicaReadiness struct {
 	// Replica Position in --database-read-url, from 1.
 	Replica int `json:"replica"`
 }
+
+// ReportedValue The value a report prints: x̂0 (undiluted, in the curve's unit) × dilution × final volume ÷ sample
+// amount ÷ dry fraction, converted to the reporting unit, rounded, and qualified against the
+// reporting and detection limits, the highest standard and the IS check. Absent when the
+// analyte has no reporting rules or no concentration. The laboratory's accreditation,
+// regulator and SOP come first; a qualified person reviews every result.
+type ReportedValue struct {
+	Action *string `json:"action,omitempty"`
+
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions         Cautions `json:"cautions"`
+	ComputedUnit     string   `json:"computed_unit"`
+	ConversionFactor float64  `json:"conversion_factor"`
+	DetectionLimit   float64  `json:"detection_limit"`
+	Error            *string  `json:"error,omitempty"`
+	Factors          []struct {
+		Name  string                 `json:"name"`
+		Op    ReportedValueFactorsOp `json:"op"`
+		Unit  string                 `json:"unit"`
+		Value float64                `json:"value"`
+	} `json:"factors"`
+	Qualifiers     []ResultQualifier `json:"qualifiers"`
+	ReportingLimit float64           `json:"reporting_limit"`
+	Result         float64           `json:"result"`
+	Rounded        float64           `json:"rounded"`
+	Rule           string            `json:"rule"`
+	Text           string            `json:"text"`
+	Unit           string            `json:"unit"`
+	X0             float64           `json:"x0"`
+	X0Unit         string            `json:"x0_unit"`
+}
+
+// ReportedValueFactorsOp defines model for ReportedValue.Factors.Op.
+type ReportedValueFactorsOp string
 
 // Response One instrument reading (may be negative after blank correction).
 type Response = float64
@@ -1340,6 +1556,12 @@ type ResultFeed struct {
 
 	// NextCursor Pass as `cursor` for the next page; never null on the feed.
 	NextCursor string `json:"next_cursor"`
+}
+
+// ResultQualifier defines model for ResultQualifier.
+type ResultQualifier struct {
+	Code  string `json:"code"`
+	Words string `json:"words"`
 }
 
 // Review The review decision, present once the curve is reviewed.
@@ -1461,6 +1683,14 @@ type RunRequest struct {
 	Operator *Operator         `json:"operator,omitempty"`
 	Samples  *[]RunSampleInput `json:"samples,omitempty"`
 
+	// Sequence The run's injections in acquisition order. Each sample's result is bracketed by passing
+	// verifications (ICV/CCV recovery within 90–110 %, lab/sequence's default); when a CCV fails,
+	// every sample since the last passing check is withheld with the reason; a sample with no
+	// opening verification, or (when `complete`) no closing one, is withheld too. A CCV every
+	// 10 samples and a closing CCV are checked (common practice for EPA 200.8-type methods) and
+	// a breach is reported on each result's `sequence`.
+	Sequence *RunSequenceInput `json:"sequence,omitempty"`
+
 	// StandardMaterials Codes of the standard materials the run's standards were made
 	// from (see /v1/standard-materials). Each curve of a material's
 	// analyte gets the check `standards_in_date`: every material and
@@ -1502,11 +1732,39 @@ type RunSampleInput struct {
 	// Dilution Dilution factor applied after inversion (reported = curve value × dilution); 1 when absent.
 	Dilution *Dilution `json:"dilution,omitempty"`
 
+	// DryFraction Dry-matter fraction, to report on a dry-weight basis.
+	DryFraction *float64 `json:"dry_fraction,omitempty"`
+	FinalVolume *float64 `json:"final_volume,omitempty"`
+
+	// FinalVolumeUnit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
+	FinalVolumeUnit *Unit `json:"final_volume_unit,omitempty"`
+
 	// ID A name of an instrument, analyte, method, level or sample.
 	ID Identifier `json:"id"`
 
+	// IsResponses The internal standard's response of each reading, in the order of `responses`; required when the method names an internal standard for the analyte.
+	IsResponses *Responses `json:"is_responses,omitempty"`
+
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
+
+	// SampleAmount Amount (mass or volume, in `sample_amount_unit`) taken and made up to `final_volume`; both or neither.
+	SampleAmount *float64 `json:"sample_amount,omitempty"`
+
+	// SampleAmountUnit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
+	SampleAmountUnit *Unit `json:"sample_amount_unit,omitempty"`
+}
+
+// RunSequenceInput The run's injections in acquisition order. Each sample's result is bracketed by passing
+// verifications (ICV/CCV recovery within 90–110 %, lab/sequence's default); when a CCV fails,
+// every sample since the last passing check is withheld with the reason; a sample with no
+// opening verification, or (when `complete`) no closing one, is withheld too. A CCV every
+// 10 samples and a closing CCV are checked (common practice for EPA 200.8-type methods) and
+// a breach is reported on each result's `sequence`.
+type RunSequenceInput struct {
+	// Complete No injection will follow; an unclosed bracket withholds its samples.
+	Complete   bool             `json:"complete"`
+	Injections []InjectionInput `json:"injections"`
 }
 
 // SampleResult A sample quantified against a curve when it was stored.
@@ -1533,6 +1791,9 @@ type SampleResult struct {
 	// ID The result's id, as the change feed names it.
 	ID int64 `json:"id"`
 
+	// InternalStandard A sample's internal-standard response against the calibrators' mean IS response.
+	InternalStandard *ISCheck `json:"internal_standard,omitempty"`
+
 	// Interval Confidence interval of the concentration. When `bounded` is false, `low` and `high` are null.
 	Interval       Interval `json:"interval"`
 	IntervalMethod string   `json:"interval_method"`
@@ -1544,11 +1805,21 @@ type SampleResult struct {
 	// approved and no verification failed before the sample; `withheld`
 	// when the curve is rejected, failed, unfittable or superseded, or a
 	// verification failed before the sample. `release_reason` says which.
-	ReleaseState  ReleaseState `json:"release_state"`
-	Responses     []float64    `json:"responses"`
-	RunID         UUID         `json:"run_id"`
-	SampleID      string       `json:"sample_id"`
-	StandardError *float64     `json:"standard_error"`
+	ReleaseState ReleaseState `json:"release_state"`
+
+	// Reported The value a report prints: x̂0 (undiluted, in the curve's unit) × dilution × final volume ÷ sample
+	// amount ÷ dry fraction, converted to the reporting unit, rounded, and qualified against the
+	// reporting and detection limits, the highest standard and the IS check. Absent when the
+	// analyte has no reporting rules or no concentration. The laboratory's accreditation,
+	// regulator and SOP come first; a qualified person reviews every result.
+	Reported  *ReportedValue `json:"reported,omitempty"`
+	Responses []float64      `json:"responses"`
+	RunID     UUID           `json:"run_id"`
+	SampleID  string         `json:"sample_id"`
+
+	// Sequence A result's place in its run's sequence.
+	Sequence      *SequenceRecord `json:"sequence,omitempty"`
+	StandardError *float64        `json:"standard_error"`
 
 	// StateChangedAt When the release state or its reason last changed.
 	StateChangedAt Timestamp `json:"state_changed_at"`
@@ -1576,6 +1847,36 @@ type SamplesRequest struct {
 // Scope defines model for Scope.
 type Scope string
 
+// SequenceRecord A result's place in its run's sequence.
+type SequenceRecord struct {
+	Breaches []struct {
+		Detail   string `json:"detail"`
+		Position int    `json:"position"`
+		Rule     string `json:"rule"`
+	} `json:"breaches"`
+	Checks []struct {
+		Detail      string  `json:"detail"`
+		ID          string  `json:"id"`
+		Kind        string  `json:"kind"`
+		Passed      bool    `json:"passed"`
+		Position    int     `json:"position"`
+		RecoveryPct float64 `json:"recovery_pct"`
+	} `json:"checks"`
+
+	// Closing Position of the verification closing the bracket; 0 when none.
+	Closing int      `json:"closing"`
+	Notes   []string `json:"notes"`
+
+	// Opening Position of the verification opening the bracket; 0 when none.
+	Opening  int                 `json:"opening"`
+	Position int                 `json:"position"`
+	Reason   string              `json:"reason"`
+	State    SequenceRecordState `json:"state"`
+}
+
+// SequenceRecordState defines model for SequenceRecord.State.
+type SequenceRecordState string
+
 // SigmaBasis The σ of the ICH Q2(R2) limits LOD = 3.3·σ/S and LOQ = 10·σ/S.
 // `blank_sd`: the SD of the readings at nominal zero (also those
 // excluded from the fit); `lowest_level_sd`: s/√w of a reading at the
@@ -1601,6 +1902,9 @@ type StandardInput struct {
 
 	// Concentration A nominal concentration, in the analyte's unit.
 	Concentration Concentration `json:"concentration"`
+
+	// IsResponses The internal standard's response of each reading, in the order of `responses`; required when the method names an internal standard for the analyte, refused otherwise.
+	IsResponses *Responses `json:"is_responses,omitempty"`
 
 	// Level A name of an instrument, analyte, method, level or sample.
 	Level Identifier `json:"level"`
@@ -8717,420 +9021,453 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L3dbxtJli/4r8Sqp2GqOkVRslwuS2hgVP7o8rRddkt2Vd/brGaGMoNijJMRdEakJHaVF3cxwGLu67ws",
-	"cJ8WuPvx3AMsGot9q32f+Ru2/5LFOSciMjKZpEhZdlUP3ECXRTIzvuN8n9/5fivT05lWQlmzdfj91kTw",
-	"XJT454mw5fx4bEUJn3JhslLOrNRq63DrVGRa5YZZzS65tOxMjHUpWAmvSHXe30q2SvG2kqXItw5tWYlk",
-	"y2QTMeXQ1FQqOa2mW4eDZMvOZ2LrcEsqK85FufXu3btka8ZLPhXWDeNhVV6Ip48Wx/BqIlgGP94xTObQ",
-	"pYSvZ9xOtpItxafYcL5yKH9XivHW4dYvdutV2KVfze7r108fbcF4nuZiOtNWqGz+WzFfHMgxywoplN3J",
-	"JtoIxd6IOetxBu8zaRhn51rnLJtomYltZifcsil/I+AXWDAp8qGCIQpjmeFjccSMEMxOBNMzUXLo5Y5h",
-	"UZ/9ofKzpf2q5xuNdQcG21h3fvVMqHM72Trc2/8igX0In2HVrRUltPnHPxzv/Ge+86fBzoP+6HDnu+/3",
-	"kr39L9793VbYLmNLqc5pcZSxZTUVynbvkAy/M5kLZeVYijJh3LCZNlbk7FLaCZPWsLJSZtku1p3cdDef",
-	"hs5x2C/5uXhYlUaX3cNOlbiyowyfSJke43bMSnEhdWXYjJ+LI8bPDExrrEv8dSxLY/GnMIu3lSjn9TSo",
-	"ua11h+zGB8M9qdSyK1BW6sNegHfwvplpZQReyC95fkKnFT5lWlm3+Xw2K2SG53V3VuqzQkx/9Y8GBvr9",
-	"mj2+pLeo0+ZUn/NirMupyJmZK8uvEnZZanXO4EQyXTLOLnhRCaYra2RO14eaPWRT/+5Q/cPpi68Txhmd",
-	"YHY5EaVgnKlqeiZKdiYKrc5NwrhilXqj9KViYymKHF5xF4TpcqhKrs4Fu5C64Fbgr7jVLJAuuua5FoYp",
-	"bRkszRyu7btk66FW40JmH3X18KAIo6syA3JpLLcCDu6ZBCKOPxL96XGiqQyOurgUOeNFKXg+TxgfKvoJ",
-	"bqyuLONsLG3CeHgZfqCF51PBZE2KkCQaK4uCSTWE6Z9P7LZbjyc4jFyoj70gVr8RihU8e2OYuIDtM5me",
-	"CVZIJExSsfRqx1+dHfzNpP0tJHpwEnjxuCx1+TGH7TtmAnruM5jGmc7nzPC5YVoVczbcko2HhluMq7yx",
-	"yUAs3iVbX2v7RFcq/9jrDpQpD8exviTiShqLI3vJ54Xm+Sutn/HyXHzsAeKKiqtMCHc7jCgvRHnHsEyr",
-	"sTyvSpGzQk4ljfZUlBcyE68Vv+Cy4GfFRx9wzi0/40awjCtYyTPYa55NRM6UvkzCHGQmQCIxk8paIH+5",
-	"vlQJErTeGGnoZSktyijSIOfmKnOzN9Bi7s7Ymch4ZQSy7dC3NEMFhJWr/GxOIkpbmtwJ4mTXZN3Tu5Hg",
-	"ifN9pfVzruaO6ZifhEzcMeH2lEA7pWH6QpS4Au4k3NZ0Xyte2Yku5Z/ER72az6UxUp0nNbtMAhPUJTAE",
-	"/Ubk7EzwUpS0Kq1Jf/vttzvHlZ0IZWGUYlFgSb/Et1NiFVyxFGlUyri1pTyrrGC9kycP2ef37w22V2sR",
-	"bVGUlm5W6kwYA5fwsbLSzj/mCn4rimLHSSlSzSpLUsBZKfgblParQnhZ0l3HI7cCJkWyaBhc26HS47FQ",
-	"OVxRFD9qCl4VwrHN18pUs5kurcifi1zyV7geH1ukwCtxx7CH1OsOjAIuB1AhrVpaDONZJmbW9FGmdX3A",
-	"EI7xeyA2T2HZcOx5LuEdXrwsoQErhdk6HPPCiPZI6reZnZTCTHSRmyNcSRxDIcYW5EJmUeuCIQl1LpVA",
-	"rWrMq8KynpmQsFcUxPq1wgenwk50jkdxFo3j+60znr0ZZbzIRoW+HFldiBJGMJqRYCeusqIy8kI898ou",
-	"nV84HdxuHW7lugJGkYBWRg/sDQZJl25Msilsed3nVKrRjBszGpc8o2X4fmXba7f8cWYy0VNtMpFzY2Um",
-	"7XzEi9nk2tN4jA+9S0jCgU3f8D2Q9UZ6PBrLTd+ccpVzq8sO9f/hRIAEeQnKPxtzWVQl/UtH7UKUuczs",
-	"EX7QdiJKwzgoHfmFNLqco95mxdRcqw5CP1/zqaDxXD2ll/bq9eVlyUHdrJR8Wwn3O+yWm4AoNp711ag0",
-	"H/YowFEuxIUojLNR0KP34vf2Fw1F9GI5Mm8rXhKjfI/zrytbSFGOMq3fmFH+wSbr+zG2QnvEn8SH66us",
-	"lNlwvy9EKceOYyxSguax/+GXj34ArTt6hYQ/Xuas9/ThN7sPH36zzaZ8zoC2Mn7OpQLlw5qhUnoqQUNB",
-	"nb3PHjkqvD9IGAdJiL0+ZY9fHrPTb3e+OPicPUcqzL4YDAaPhirjhTxzHCXunq5Ywc90iVf1jnHkmxlh",
-	"DXTM9KUznn2AFX8XvtFn/ygyCwtas6aXupDZfEPO9hi10sDUgC+NdZmJxPMtU3OsjVnU4lTfn+FswljW",
-	"eHs5m1jj5Q4mscZbnSxijfcaDGJzet6g4B3keq0RNIj1Om80SO+NKOw6lHSDt1p0cY03m1RujRc2oXEg",
-	"4xKdKwoNxjDQkjspnmG9PCJiy8kXipLXDvNdrPn8Id6o1tHoOrBL783y65isJBarCUH7nDRP4uI9bOxZ",
-	"99YvHqP4gq3cw++6qLA/Hm2/jZHnChsC3QEXuL+1kgcM+vdiHtAfDAZ7HWfsWPFibsW11L5Jr8liv74b",
-	"AwU9e60VH55pHyjsyr3fuWJVLu3jC69Hrj+Hmjm0VGNQhC+5YblWImGif95naVmpflYKbkWeJixF63J/",
-	"LG3jM5/NSn0Rf1MKGKbI0/6iRyqBEXQ5dYDQet2bDL+om3NoqLudFhXlVuxYORVdz+bCcll0048ZL63M",
-	"qoKXJmFSZUWFej33FvYSTUvcaNXvdLDF28btlp9gshWun+t96T4+0+cb7qK48P7gtThZdFoWWFlrBq7l",
-	"rrE+5BUMzyw5PGTANkBhwamqcmdmOHRWBbzDXsiM7LSOLA9VVkorSsnZuNRTNqvOCmnAQnpeyRxe7hAf",
-	"eZaVIpcWCU0CXtrzqoAfsX8nXJ6+eImWBTYrRSZygU3R5rKzObqGeAFXNmczURqthiq4ywvBjXDuXL/S",
-	"C6drKpXX9RYFBZQiNtxe2MLKinxxpZ/A4+AVI+tHBo2zTFdFzpxd2b+Lq6VYCrxA5ClsBvaFK5PSkUzJ",
-	"LXE5mUdH+0zrQnDVvDYLc0abaveFisRhPAowImA8aFM8YqoqivYMJhyOikJH4SX+bcNEuik+tEKWfNIL",
-	"Vst77eMqQM2P7EfO349mdRpRLjLvpQwGAjQOXEoj3MRiC8Hi4q3DLRoiJu1UtNpRY+SK6ZxKKYLlkW6d",
-	"ra1mmZ4KvE6dFNTAvQEJZMk+YryDfwa2Ziq4wTuLamG8le+9Yd38rx6hP3FhmZL6ljRlD7dUK8luve5d",
-	"wSLwo2dFEe2aoYZ4yNJa2gOeR+JemgxVGol68EtbyoPvgqAGdEpqBd8F0QwbKQX8ciFGXnQdkQk+YWmQ",
-	"1PAtYWRe8WIE0hp84UQyg61MtdJWK5nBL3kpxzbts+hb1gtrBkTQHZht5jYBTWPen2w1EBY4N5kt5iw0",
-	"Qh4WWKVLXb4Bpolu977vED1OfpcYt0yqc2HsIb6ixGWIDjKFntW8ga4lV3iaTx8Fgzz6rOtoFfiVkxx3",
-	"x7D9AZtqYxmQeGWHyksl1IdJat/3t8LYc7CBkJiCF8ewnhFiqNLfPH7Fdi/2dm0pVG7S7T572rjqrFKF",
-	"MCYmHYU0aLxg3AxVWNTE3UV4Odi38aqMQaYA4UaxvQFrjXOo0Mma+H6ogXqrekjU6dtSkHeBtQgm+O3T",
-	"oPeMpBqBbJR6UtzcjJoSl5VyLg60APkG2JQjVy7MUTTrO4al4moG1zWcU5M6MirtUDWHXJ8vXYa1THDU",
-	"SHNhDZ3dR1XTJRpVU5fq0KJiPchdr61kK1Z8ltytWAnCp6KbVes6OBJ/9reSLTzkRKSaSx2RHEdsk62r",
-	"HZjZzgUvcY1hikiEnkOMl5smfeHnip+e8ezNi/ETaf0XXy3OGb//kmdvHjbmjV+fnIa502e3AKduzI/d",
-	"9PHHp9EauKdpIU5oHfC7F/Vi0HijFcEvHrllwQ++H/NUPcKVofgauKNkIOwiwN74mMUPgmxOFDnc+UpJ",
-	"281sYptg/b9r7LEQ9yNRPOzgh5d6x8gc7ml4ihRSIE94eC54YRI26N8DejnoP3jw4Fpd9cGDBw1t9V73",
-	"qGypi2fA/cyG5snTibic8BLFbWiEPOGG9Z6evmD3v7g/2Nnf9lw8xAxBrEAhFQbJtZl2ly45msjzyZq2",
-	"HfdGoS/XfAH3X6z58CUvlVTnmwzIv7LuiFpiihtes53WQBqzThqL1ima0FadVEWncFJzL5D3euGjsIwX",
-	"/YQ9LKTqs4cTMe2z/fust/fgi71tdvDg7vYhS/d29k06REGbgvHOxFyrnP34531gtD037u0jePSuSdE7",
-	"G565y04fHbF0Hxph9lIDb1dGZBUQFP9Y4NTYIp63I5ae7BzQOyx6JYHmh4qf6QvBfoXPezc6StoY7XfJ",
-	"/vrP/7JPPR/s7JmUjXVVssWehyp0vRd3vTe4SpkVqvGKcx7j0xiNqMdB7GjyIViyrWQLlmMr2dqnTzCd",
-	"rWQLxgO/Da7WpPiwqXvUAvx11/+1H747OfB/HeyF56B9OBlLwmFfzPjbSkAInxGWUQwr68E1/vygKuur",
-	"PQPKoc7RwBmFGt/b218r1Hi0892v/q5LjcAA8E1DAhiZkUjs6bNvgxQiOAzSNJVa9zDYg4oCxNtMi/FY",
-	"ZlIoi7Jvk5+blLTcTF/wUoLwnqJLV0xndp6QaEs32pCVSQloHbrB54DsJSx1ih9KTik4jNPEtYseZdSe",
-	"hwq0ZzwybeJIZGLEbafaVgtdoPD6p5ssY5VJi9cmzIXfsshSs1L99M/BOzinzZwjXY6ReGcWJ/5UsanO",
-	"RbEj3lZkoNdlLspDBhyHl+wPZ4OEne19l7gvRrqU51KxP+B3byuelxyUUfdcws72v2s46Nfzwzhzzd2u",
-	"4S8XAh52sH7YxDNSRXL47DXvIBKs5U5Ituqj2tWv/w2E8VJe+Y7jtU6Y+fFfe7////6v//Lt77f/+j/9",
-	"Pz/+3wkr9aUBsSl6jta7sWS3tnarF5bsyKuvg4tf5ibceJUzY/VGNyMfL/bgJVmWi/NSCAMrOC6FyPU0",
-	"YQp4DJtFNpLIx0aRSKMLUZpOcRWzXCKHNz1PZCWoW5R+YL1dHZ/f3esP+oNuG7nzfmt13TV8HB58l2yN",
-	"C35uumyGmTWMn2GEFQ2EhudsXEp7E9faoS5PpH1S8POu+z8R/EIKY0l7u64h1H1OJ7xEC5jM10t5SOKE",
-	"k07rZHCaNpfikTRWqszS/TVepRiTHrEq78nZn65dGSenw21ARblzePTTCGzQyw8VPcT8Q933A3h7Y+h7",
-	"XUNHknvdyJ/jQ++SLdV1fRxXrheM9fCQgkqklfAWiEqhAeLaxZxp2ckfKKAi2B6cNJD46eqS+V4Tdl7q",
-	"agYBr3NHjqUiPmpkzVnWj96CpX0Jw+o61Q0vezuoFJIlRN6kssAJrChBkcXB9CrSZZ2PusHdtm9o4kZr",
-	"23XzOsGH3kVWDZOvoI9h6XNxIWnopjffvdpOvND8b//9kv2aKXaJ82Ym44W46QTQCXPtDOgp9zzchZFG",
-	"Es+L4sV46/AP65CM79oS6MtSYHaYVowrFghuuG9JdOEkuUZL4Y4hWdQpuGG0PtFqCakdWZt+8emBJWwe",
-	"HaULZ/t9mbex3Fbr3ZJTejTybzen8frh6+cs07VaVZtsGiadYMBZIJBe3hmtRbm+cU8HCubY2bXvucfA",
-	"DoCHeZRxlUsQLpaSpvAEmK0zXQpnWU55ZTWpHfgZlIkrINDYMDqUC/lGsB7qIHDqyOALSxSJA0te3l6b",
-	"jBE1euhH2UXL/Fy1Al9vJ//5Sl+6zikWFi957sQXBSetkAbkGs1MNYV/lE8xTiM60y3chFmtf4e/Da8s",
-	"XuRXPpFQsArGhPZmrQRz2b5o4HbbQ7cYY+KRTcWjGaFdWuS3PirXdzbR2gjj01FNresmjBdG15Z4x/np",
-	"DHCFxpCQzercbfVBdJrymaDzmLdmFaZ76/OKhsrNG2Js2PmfRKlHE67ywm3y4uGCR5rEwFAOi8tjZZei",
-	"BJPGzLpogFLnVQbXSKqxVNIKfz6PSKv366IE46U24vpYDUq8JQIepLVF2SxpJjd7tdvRPi9bxae6e/W7",
-	"aIwX2bvuZHsZW5r1Ijdp6JBNdo86UdMTAh0E/0qk9AbRLFgEguTrBY6avgaukTTMHQ1lL7JGLChTnfZP",
-	"hBNQT3SZXW9UaplclgQkTDU5DPGQoh60vjJ5xo3sjHiZu2gBEhBMFPorFfhDc9NJ/G5kmvEGtus5czWd",
-	"8nJOKuRMlsIs17claEH8gihSJkCMbvj3nJ+CYSp9w0eglVi6gEtkvkg148aO4vjA9enSN/Fb3aSp4Bi1",
-	"ELcPVkNdBvbEbdoMXOjydCzY+XEH/GlIKM4rWuGuaUV7vfScP5Nm0wC+Gx+gDWx7raO0oOJzM5rq8toj",
-	"+RU3zzVp9hFaw3VvfS2ubISssLANZqvZXDSedZacVLzNrNUvlFjQSWtcjFzyc6WNlZk5Yjz6iAFw4aRJ",
-	"28qkZj2lySqkS+DopdYEVgFO7J3Iie0eIKfoAB/xjmzSFFalv0EbXWprwwuLk8J+id0G1eeGil3WdvGu",
-	"ZQHFSGJJSc3dL13bsbcOdEdRkfp2w6aDPavT2lTy85uOOQQl4F52B7rvDQY//qXX2lQ0WzaWenu38fHG",
-	"ajmJDjeeDwlxa+57FFc+invuBlYo5sy/YAikAF+44UxJ7Fpm02lbPFALOmIDus/+qN1GuBudrfa9iZYy",
-	"DDUc4miblqxhdDAXbleyQCA6z2F0oZYS1NNgOGiblDDCFqFM+uy4DvhCd9qM0qdHZAJKj0K8Nfw6BkrX",
-	"j7ywzae3ki0fNoXDpmjzdaNu6jG/pFZPfKPRT8d1+9G3J6GrMHnHJTcNwm/4Bm/B4ddwrqzXHjg0RT6q",
-	"/X6L8fi1BQofcl4DSW5ZiMOMowijyK6muWKh57Y8cWtm/81M7rdpM78mC+t6mrmpIfHmtrpFY9sNrWVO",
-	"uV/TkvDxtO9Yze3QVJvnfoXm2kXxHsmi6jaZ+V/YGPM/EFFKgr6J6bJSOZ2X9ULY5q8dOaRQnP/3f2G5",
-	"a2L7iO0RjyGbT//G+bBrRL09jl2NG8jE19nP+x0RES7x571SeVZ7jrxwTqEkNBLPqU2DKm1ArpdLfqUg",
-	"AA/RlZ+5hMfX73QdsAXHE5hcRpR/BJ1cq1/Xj3b81HCfrIWtGM8gfj+yE7keW2ON8qC6r1I4eOtpZEu2",
-	"ZP1cvMZeLep3/uQ4jocdJGxvB+Ko8k7X4pEDJet6s319G5dytbu289isXMAI7W+DJawv0lpGgdZ2NdxJ",
-	"99yclmdBtY/xegafV+LKdhh6yPgmKNvAARiUUr0BS8+ZthMmFODL+FWsDeuQI2wocwDiL+FvFwjAS+Fe",
-	"DVJ94y7dzni9Fx16izpq7Xj7YnXtvQ/A6IgQBf7joj14O9bDxMEeLM3RpqBcrMaImGh6SBGi+B1DrB42",
-	"1ZhlxBWb8GJcp2laXng/sEugaIZ/pBBKOhaXo3D5zGisy5HZTyEcddf8cZ+cMui5Id/XUFHPOGxIDKOE",
-	"ibB4OIxmJgLmN4ce0mYEZ+ckt5KtzmGtqUS45X/kmsYolm99w+7HJ+LyJDT/RJen+6g2eKPY0qw0zsC6",
-	"hTilZCcyzGVXAkskqzP+SM4snnenn30leGEnG9KEWrD0q6ff0EHM52suDfX74rdbfggn9HL7lLuuug53",
-	"RLc7zrdyicJcRdlAifcxJ+5YJD5ErwSH+awQrajXzw/WCnr9rg21O0g+v/uuMwy2Btp9WQq4YDemzJGm",
-	"tz57u8b5QehHTv92rgom6eIdAQhhm2OtJ401wyVXaiP1k6DB4J6sz33qJT3FN9sQS9cwoHaadlAj/Dg6",
-	"j6EL4dxQMK4nGoJA60CO2DhHQc/pma5UHmfoJiwt9KULYQY+lYag5A47L73dbe9cngixvrVzHUgWfXmj",
-	"XtqSDuZHuJwJLy37+XVt0DNuBR2H9VDpbhKgTQcEaa3Pfj2qiXEpMiEvRH6zy3Oje55HGuiqt4KmupaB",
-	"pS0qR3DSq0Oz/IOd+n19z+oWOzeyjgLd7K69msRyilf8Cl5iaqOBFruElcVrdBOHhfEDbo4JrMWxKkDw",
-	"ESS7YMKse4AXhQ9r9L/fBHqmbTKmUXWu8k1SyB4JKzJyo6ocAvCVDS5Ol06WUIh5O7DLIELvzLI0K6WV",
-	"GS9GaOlIAcPan4ftVUnkrS3yrWSr8wcht21v74uDuzv7zL/jscfHLvXYtnMLr0bZTV1djcndZDh+LRI2",
-	"v/EolgGcQKyNnYg5xdP4xUWH4uVkDiveX4KXIlzSWjfOQzwrp8wyegmGSfODVb0pekOhO1yWTx9+xX63",
-	"z8Lg6Pwl7G7/7o9/+fd/2j29cWdvl3bWdeITtjd4rw6NPJ/ybnEtnIx//ye8V/5w0JVqRoGl2M4IgxJA",
-	"fFgz1SR6a33V9hRe+hLf6Y68+Pd/cuF3CqwiLuhtux22ZqMUdJUvD4PsXU5kNqEW3R2h+ORTAOhalBzy",
-	"LdrGhfuYLKMbi4d8JWLE8+Ba2EjE8OAR1yL0tHEINwZKcoZr0g9jI+wysWMD+CB6oTvbK5b/1/HyX58G",
-	"FI0f5S73ygYJQHGrC3biVrQg9HAuL4RakojTwjhYbNAZwrFkSuo9YGlCQOztmM5pQDgOLTq8kRhMxivf",
-	"/rtF1dvBCeLlGfFzMZroqiui/OvAXN09y7ULQIF53RRaZ7N0EgezsjAB79SlkQF4wtgH/S2qMus77m7i",
-	"nIreGunZWvFV4e0X7vklEDaRKyvemusCR/0oWsGZ4e4mMXFZvpbdx6QVoEmEZjnVu0GUGh339UkMdXQt",
-	"OplvdvlYb2hxuQGhJp3zPelpw4ZxjQ29SWvXY9ux1eW7RdmeclUH/Qf3+h2E83pT91oEsjZsuvQ1NEWV",
-	"lSL2zhXTld3R4x2MZl/AnRkqwurupSHWIKXknBhUBqktuVYRNadXk+LtFrJMhBX1/gQWBGyoSeT8vLGT",
-	"yM/XWABZ80Y3MLaRGHkLLt4v7n9xcC1+942o9frGghVkfNk5gNARUNZpfQjnEcrUGR8DBD6dMxFnYHmT",
-	"ZUBxxXu83W37/olYgKMI3Xygi9wHytFJz/y+tSp0UOpgyubs1+xswH7FzvZ+/MvVEUsbOYXud/dTSJxP",
-	"h6r5Hvy7/+Nfrn78V0KF+eLg88939ltXhlreStwfroutZCu0u6ZzAOf0zLcWfXrhW8Tvflc3C2WQ6oDg",
-	"ReELgpBA8HKV4JJWjauxLKwoTRKKwAXfSmR4IOiQQhrrgAjZuCrxqMKDtBSrATMWcHI2AtB4gfU3uqb3",
-	"7USz0rm7amfHEfo+wiX0FQvnlEaEyIvp36cth8e6FQWbHo+/R5fH3v79bp/H+3o6/jbdB6ucBvGK1GGw",
-	"N3P+3E7yyCpUK/JJNEEtgCmvC1qB3HH9uDV6/kbRa/Tq5qFqhEh7k5Nygm92Kb1LIum6khVGLTs4vtpa",
-	"iPbkWiK/n8E1yQ0LA9/4Jq4yqjazBUjWQRGsGfW2gO6KzNsR1ZDf4FR8b/WEby61hxZoQEmCGDc9k+eV",
-	"rswI3k9vmisfu03WONlLoDRShKQa4dgAdgixq+qP4sqWfEY1J+EzPV1oAvb0n97CT0qcY7A1/q1xbiA6",
-	"1S03pz1UPYeeFWdMdi4ZGDMaduVDNHQMVQQZuZ2wtFLOtzbybkoInDhFsBXv9nJnr2YuGS/LOY4Ytxad",
-	"lEOVKm1H3lIK25BiOAhLidrSgfRy+KZxwQuPycgvu1JM9c9F74zqEOFOQ3ntsgW7kD6zXKqQ+JyOpSgK",
-	"UXanNU8FV6MNcx+846fLcAPPgJ0vxKhE2bGc4vrz66E/WkCXi/EUs1mpr+S0oXrhs51Oa1/+xV+nKDMQ",
-	"rrgwFpu6jZwImXckRHTjdl5gtoPPpQ2L2t6TiAosnojVNNWJDZvR1L8lV+1qB+3LUsw4bcKpFbNNwd4U",
-	"44V8W2nrz9SMl0KBzJoLVs2Y1RiqhgWHdFFNRULF4egDkLnpszrfLtSTYD/+GcKpM8sVwL53pcG5fkfT",
-	"YsMyTqs0at+o1YVreMMGcKq3OyZq8oYjaofH1Iu2MNlo8K1Ou88NlSdcTA568pA9OLh3n7myh4xcL2Zx",
-	"B5d5NqlgBbqWsM600/tkAHggnW8mtAv+WrTtL0FheaIxXp8X0lWJdKexq+ajg85fU7TEqT6BlzvZnapT",
-	"H5eWcmQzTohPHdHd+IATx1fVgkx/v+PUtZ2nIKdYzWCLXV0BkhGoBMa9wWApcnxluvv56tWrl4weQBCY",
-	"RvjzvQbi7cGgExzKStsFfno60aVlhjKuAiVx5wda6RwqfbEYRvj65KnXoec+cCRuzPP8qlSHKOu8EWIm",
-	"ykP3zKE7IWl/q61Wr1YL8Fc/xygtZYXvsXFwDr9f84K88kUBpK9w2l+aTyGWVNlvHflDxhkUaGcv6SUm",
-	"ldUEgaihAnm6W0glzO6wGgzuZgr/Ee5TBrTcfZUOFdzNh6ffoPSf0hPS/XroXudT4R5nVPw4FG8nQXL1",
-	"Ovt5rVzZE4+gtQE3+zaWtpM6X9oFl7sF8fHl5FnAOs9qB1FP6hp8nJ0VXL2JQdWiDHErEEB+u6VTla58",
-	"K8EWNI/C+8T73XoMX+d6o2gmzKYZOGA87dDGQNLbwZLYKR0k/AJcASm7nMiC9KCoADYL9a+xzn0pMo0p",
-	"HD1sxDCuDMSa3xvcdahOUZnoth+h7tzJnNjxBoZQWIxv3fv+8wtsos5WMctoOc+9YmBYb6Ktn5fZZgU/",
-	"33EyknVFwUF/O9fMah+rhcV3+A1g8lxIe72RDUva5wdh9h3AYvHKrbtQoaPVYeRkX19y5rCID5iSus4Q",
-	"5Pmig5YX8aEhy0XDK3EE5wvaIg1XY4SvpbLqvooDyASUYlHHDFHCoQcgqYNKj1gKh2wiijwdKn+/6xxp",
-	"n9icuBYSVqmxtBRhpUtmqpkojchdPBcfqrW67ftp+HycUAVIZpPmEY/WhvLD3eTBjeFGvvY2Yo8vGw26",
-	"L0/idt1334bmcQdbZ24z4iHVqDIr/FF0RfB6wH4qfdntVSr4+ciITKt8iR9wzEs6EOxMTKSDMp+VEuQV",
-	"DA/xYaHcWIr6aIZHuWLuS8oGrCwlGxKVFjOPpGXnwpIFDmfaq1QJAi2seALUoq7jghYhqssRKGVCeF98",
-	"e4nUiXvT4ZnRzg0qFdvZ8TR4BwllVRaOce41pEOXlLFuapzvO/Fb3H39a4vMYtZfVE/Gp/H1nPPRW+ic",
-	"xYNYdabLkoLGtjepPNFM+ttZ/G1hR09ivb4NrFAbhDyA3HtBn4Yl2swrgoOsipuVIVzh5dgkGzjjnVc7",
-	"qlyI6PDksOnzvFGlEJEnwueYeKYoTdD3IbW52+y3RuT49THEG/pR3kiVxwyVZpo7dUKMsgnIpuvT5rCL",
-	"D0ND0ZfIOR/6JkFlgKUD07TxPHW9YJQGJ14CLQi/OZ7lBN8xboWrQtkB1XVNyjNxujDS9cfnPS9uX8K2",
-	"SmU/P4hv+oPB4P7egwf79w7uHwwePNi7ziS7IdYDnt3RElu4EW9Xk15ULAQkrUgFi4jYiiDaUu4ylnts",
-	"ULL3nt563jEYuMNRw9Psr3J7yxZOW5xvHvYnXqYIVmKlC65xb5dwjqqwT4TIPwJE24YVPWPK+0EQ2laH",
-	"WXSGU2DcN15ZXZ+763E43cxvCup2EjCkN8wbcqFGucgc3vMsIFpkoi2Jw6NdSSlrxGhHZWQxXPsWitlm",
-	"cp3aALQyj/zTK8TErxtwiM2Q6GsAJ1qbGcYWXdNrcCBaw4zYmtOqAsbT2vwMGjwOL9PnE9fEu/qLm0Ss",
-	"3Mbivy+YQARtAJ4TmmgrvNIFE9Sla/rL96pzV6pCfCN1UUN0bkD/HNldYrxwkehSXejiApRXqSibcjOp",
-	"1TPINu1zZ2VJ6VxPuKCuE3P1rhIGRzv8FNeF7NYES1ec65qApVDHq1HAdfUFwqbDJMJ7SbSo3dulNq7A",
-	"VFYKaHpdXuU2QMo2ylmZaWNFzpaAwN8o2mmdKjO+6NKmhWU2hFE9qRSVxuo4pL7DJRFZFvgQvNMYr18u",
-	"FeeI/CMR2cxcrF2EDMCVp9yCJX8rqT8/PP0GyeNN4djWd1rXQRibvrMBgJteGlX5Huxu89DDkyqKOeyw",
-	"jVI4Qyiy2n0kFouxNkq25u00O3IOrB9p04jeX2tavlTFtSkbm+G7NbDYwg6G+9KZuBIPv96fpEYLXi0/",
-	"VsprvR8TiHnRFIW/sZkoPZTJ+vabFYRm3cvctWvrL+BaFQBvAeTkA0MkbhpeuhrzYAF7cMnq3TRl6Qbs",
-	"+WMS7Jj+rnorRL+/D3ENyVht++VNKO5DndfQp8tJ7x0TfnT1KqY8F0OFhm2Mf4RK4v6RnfD+dp89hngS",
-	"uvCABBHavgO+JDpAZLQP4Kuso6L3oTPi+LcpGLP1natdNMMILle7CC1AUjECaZjJcs64Hao0OlOu1GV4",
-	"zbmR4A0XvOUyv/rslR8jhpjWgLCLpdJ9efA62bUZEbrBgYyw51qbjBaet5Vwvzsb4Yr8NCC+QtlyHhNf",
-	"nD0GxK9Nhj1L7DiL9zZLMAjscgVzrCe0lKyEyPcPzNU2jbGPo4I7NbgNDKQL6pMz/a0ZNV9LZ7fnv8iX",
-	"YsTuLZM61wgVXmIAbsR/blIM7HqhrQu9J5rdyuW8ESDTJzgkWsXG/dhUq3eR+z4aX+SMn3OgI5GBiKpR",
-	"XH4w5X8z7PLVmSfHnfHmzWCJc35BZUwRPIVSDzAa/MbpIjcBVI+9eO9VmjAYyRbj71mGWY2+/uByUvNq",
-	"MTnnvSCp16RSS/JmXmEghA+mZ/gUSD7pyxenr1BMwn7N7vcyf7dbP2nSJGSY+IyTXr3vHTXCMRl8MR8F",
-	"8mcmwhfnLcU4QpYhH/oRS1spASEuZn7DzJUunwPc6TuGyRwDQki8w7QdcJagMm+cPez2PHK3lDBz6xkv",
-	"q0fdDFL6IN7d2+Cct+zPXUjXuQm8VBwEcI0plBbF+d11ySjcDVbchylhK+sbSW+hJGhCsWgsbfy0WObf",
-	"QWSG9DWEyZRqzdJ/G3uMm/J3LBOtl3G0SS5T+/rF2U1N93jrmnTs/tpoL7Hc8beoN6y6Wp0p3BupCtS7",
-	"uZm1ZlPDRhva9IPlq59meiYawbmVMod1WDMuzSEc8GAQPKyr8ORTqdZ0O2BHJ5UyPuSZvqAOTqh9/Apt",
-	"ciYU5cHvjqkjGG+NQ9fJYf/9nzyFIQC/3sn+tsOpZM9ePGK/rtECkXo8e/E79usazw/SdCHQD4rXHmIz",
-	"p49qR76Hb7ehGhtG9PcwNdaC33WoQlX0kBgwxiD+lPIDHAo5Nm92//rP/42wQH3jDup7qOjpxayBxA8K",
-	"/qmLC8spiHbGJQj0xNsKgHOsboPn+UBTelPk20fNgr2H7ReSoapXgce1DoAquhEc+Rq3vRiW55DVaxnF",
-	"N5eVwozwNmo7cB/EmceXothGUcC6LqxfM1QZ+t9KtnyHCAfYeL5VEnXNQxtO2zG1X3/xJfR0mje+e4Zd",
-	"Eppt8xdfX/2UIuiC9+QWsSFugGC7qrDJhzAr1Cz1uoJnS4hVw8L2EawLC4t6jcc/ejhe3o9qaritRX7u",
-	"LMgb+yU2iQAoRabLfHkMwOoTny/7gdLjR+MwmI2RKdcTdsXVjCOEQqUyUVoulZ2v2V2zPu963fm433Ws",
-	"0H77fgvvrLzrhe6uCzark743gU9pJIp3SGnepbDRzMNLwFWX6YJUvbC1Fc1jWPXQtLG9i//UPBpeoehv",
-	"svxbMlj4uayLrFuhhaXbBhbS1tc8IMvrtXmg6c2hwnNRx9su6DfU7pKVpGMSTbFV/zg+LOsrHF1ntZEo",
-	"NhalUJkI3joYgdXZm5HRtV4FuMHU9ahdLWllDp5r88T3spWE706hk+jzM2q3Y8w3AceMXY8buZZ8p9cD",
-	"ZYYu1ln39y5Tsp65M2Z1C0bPEzd67zb0Nx4qg/q/a6+mdZ5E7428Y/oxS9iEwy/wiltCZFjGGzpsvTXx",
-	"uWOYf49F77HXDtiuNdwbpIr9ZHznFs4ILlZ925kvFIVuZ+/vNqy3QBEQHnS7H3G7CBlvfzDomPMtcb9a",
-	"a98ffCheuP5pjxnUtSvQYFjXndoGKAtPMLFO8BxEvtfIUd/c4Kx6FrimNwWe/kCEZUlxh9Y6kN/kiBVi",
-	"bJmurMctaPeyIdrr2sAtTQYf3fQuJoDx5YtR0qUQzIorGjuhpyBkbUbxzGAQLnlmRRnqe1h+lrBCKufD",
-	"gM3OeFlKqFFWCluVqgVFue/tV0uwKP84HF4NBjvw3y/gP1/Cfx7Cfx7Dl3tPhsOr+0+WgGm+AuXihhF9",
-	"N9AA1jf8L8VBN2Dh2kAWgMe7BGtUq5bEj4qsFLbPTif6UjG0EYFOeMSkZRlXzoOGqALoLV7ThE49Jh7i",
-	"1k3k2iK6uEU3kzn8It4CMwFsVSyDAjhCskDgy1o9PWIG18o56ciB6vLpeJVLy2zJZdF/nw2secPBKnNu",
-	"V0BTN8awG0jnmpdC3aa5CZK54c5fixMO/X7pH75hVP81Zb+LUNhojYQMVwUJLqS2wiwBlrKaAd4P7PhU",
-	"qjyqKywNszAngG+J8BGYX5DE57eAvEZFOEnl3CwiO2DdrLXAL8PTjQrJax1HasAXdV0gKmWlMk9LW4Sl",
-	"rEQdiXEpVa4v2UQUeVQudC8ZDAZ+RajiS0HFUHWRC2PdAxg9ubyW5YVPRNokMjTOX7o23qm7yHi9CVG5",
-	"43Dyw8FrDDBeMn/GrvEsNe/Ie+RavVfe1BQW+2YOZ9VV/jrZMh2HhpxadVRtLi4kCfM9xf76z//C9pYB",
-	"HoUbdtOiS6Ig5Ibl4J++h3CFofMM/DprcERcP5w0LEicsBX3vXT/X8YX3rlQoLMCmMXyCKFwRBl3dGms",
-	"i0JfmjhHyDcCe1OCzNZyhjRr5hd6XfdIc+Cnrpfmt0+jPpu/RD6RhZ9Ow2iaPzzT5ECJiNZHCJvfFJ9B",
-	"AMXvJpoedMY6dDZ3yMIblDstjY9lG4esRQ8HFFPTqaRCCviwWVINQapRzK0XH7hZrsRyjSicyTvGa0TL",
-	"YaGVAE7qwIrG0iZw1cNBvWn83uZA4U0e0w2lZ3xybXjWZ7FGe7Z2vHgrQ3Qlg4rjUhphKN5oG3Cw6qyT",
-	"+hQ2z0Bjrl30CI9xfDmqCnuOdbTBzgO+Mz7eefLd91+824k/HmzycW+/u7DA684oomOGcUToeQZd12M0",
-	"Ts93n0F4UOX+/cNsNv2uXQDh7v4qnfN/2Pkfv/t+L7m7ZDzf8FJylYlQlGMTwEBEkqNi5+S+v3CtsXGl",
-	"KCKyVQqSnT46ZKDGs3SmL0UJ+OGmd7UNAZqDH/8y5Ve9KyivOJVq+4/ZHtkG8SM2Y6a8KBrhAxQcOVQN",
-	"V+CR68JV9TB5ynqd5fi24+7Zr1gGlUPI/96SRgbrOtv21nzQmx5X814PITLYwqa7DvU3NUVoYQVherwr",
-	"xqPmUQILJd440uSSw5cGnsb8dsYNXMVxE3ZyFSd1o3tJL7pPT/B9GnuAJvoY/G55IPdNogzeN5Z6HY5b",
-	"g6B2pGOMvRdp1rX/v3yEAUCDH//SG+tK5SiFuvie7V33xw3ZEDZ4XTUFNLuccUCDW696Qk0nbjiszZGm",
-	"rmGi4XSu4W2WU2m7dwLY7A+/fPQD4yDBQtLZvF6HO8ZnkcXFLdc4fnAZlxVI9wCgfjw3WMtbCyOuESIW",
-	"JEaH34hLd8f4ACuW6akwLhlgLXtdJEU4inl9iIg/xK3FWrhX8c6GRQ8XM6mBLJryy5qe4viMfbx0bRf+",
-	"GPDUOhXHKTAN96QPl27FVZ8JBLcCrkpxLh0m/UhvvmiR+3Uv38KmNxpanM41ZomFe73IOqWSVkLkde/p",
-	"w28o9SLTykpVSXWest5D+Db22MUjijmma4hOont/fdYZmnwammkcmKjJ1rxu4L2/yUGKp72+paa5t9do",
-	"CM0uNtjaW0k/X5JeEMw8kGs2FdxUmwGurE4N+9oF4bYqlBBoOBskwV4fcg0qJW9aanFvCZjnYIXQemOu",
-	"+VEDBtfhAT5mKNr1rnNFFREfcpXL3ENDbnCmICtcLEmdwnkIH2icTbQ2y+CZyGK3shmPt+6LnS02AtU/",
-	"KXaYYpxHZsLLJQaPgpfnoG7hI3WUo4UyQvgy08qXV4PyfHAQc+EKYWV+tWLxz6VngoZRqxc3scxqK7ph",
-	"gXndMXZl3sjZjPQcYt6ICnzEBNbL1nYiyktpumssmGo64mdm1LU+//bff/jlyeMf/KqAnLuT8SKrsEpW",
-	"jaCwIPx2je6Gq3CTeqCtS1I30Zju0nMSTmESjrXbjeX3xg2wuX7PBDd2h6yzxh0n0wd7wtUfB/17Kfvr",
-	"f/k/4NP8j/up+5nKlXiX1dkcoMHRjEACSDvlCm2Lzu7QOy6mQuacCct40U/YP/SH6uGk1FNu9XnZZ1+y",
-	"+/cPWG9/MNjfZvt797b73rThxwYd7u2CueDHf6UAS0AmX7B4ROaMKzBh0DFnPCu1MXRXDLjhCn3ew09D",
-	"dfpoOyQzw9eNaWwnDoES5kvv3zEMXLinj44cLDcfqvpY6bEnJnWldsLOCFYTd2N5DGIBEB3pQqnYfjuZ",
-	"wa2+6ftOHMWi7I7ocIdypd5mY6opjI2fYYijYD4ck6pyeVySoVp6kxifanRVgqlSKpdMp3SDAE11KSC1",
-	"g0MyRjHuIlp99hiXg9RQX1uZF0V9Nw2WUXDLMaq/hrRdyIlpl78fyyuM9TZ16kozjUNpNFC6w01/uc/7",
-	"+O88fD93n+l7g//CUq8pNoYr9zV1GT4/VRenb0v7+9Z3C5/3O176T63vFj4vvNT4ApNMvovpwYu6EvFG",
-	"KAD+rNbrzNxJTdwhD3WUZVF0IQCQNmcgg+XagIY6J+tdstW8CV2ewbbjrPlC0uh6JbVs1F2+vSU6wmpk",
-	"4MgOgVx1WJhbtw+6YK2QLIGpYCH9rJNIKSFyQ1jZjhxbDcbJJSSvx9FTWDLu7qR/CyQOehMSTs+hVCRA",
-	"EuVsTKNoJmexNJr1IaO2aa2Q2cPDdww7fUSoSH3mS87fPWQcKLOLwL/UdZNAbkFcysV5KWDM8K4QOYAq",
-	"wQY8uMd+6UpdmhlXBqZA4TlINWG37g+2Q9XmWnqPhPb9ztoCrYOGPuOsKqWdn6LUiHtzJngpyuPKTjr0",
-	"Yfhal/JPyJEO2Zf4LCkkGYYVuYJGfYZBQOaQpXW+JXgu4oRLLBraSLmEJzDnMj1iRghXlgzxs6QGPKr0",
-	"asffrB0KBnJpciT2goSLQ6qFuIm1s61379BNONaLU4pKXxFYiGnUTKgUMqSCn+nSGc0jbT+wpATYO2Bb",
-	"NX5eQLxLyOROEFGO0cec11VTAkECJJpCZnOCqTICvRZOqk9IyMGmEjYrtDWJg7uIYSgMni1XdMMk7HfH",
-	"HhMamuSqEec1VEP12WfEEGmTPDoEtyRd9D/7jB2H8YG4ATe/shECC/F+V30HPLmw7aXkPuEdtAdHXwzL",
-	"S36p6H7MqrNCmonI2Xklc46Re9hWve60ODA369RgyuSHwohwN7givusY8emLl3hPh2pWikxgreGjYMUC",
-	"YuLXAsUpSCclMJmZKI1WHg7MmbkI0GyoaEMdbphb5Vq2LMVMcMQ0k3CIWOpNFCmu7i9+wR5qdSEUfjdU",
-	"O1RqjAgxAWPA+hjF34hRhr2+kv5bqCd49+7dB6yXkn5wyIJlIQUSxhgvLnHDSmmtQGz8168eOiz8K57Z",
-	"Ys6MvGLjkmfEQ1guz/HUMtZL9wf7n+8M7u4M9l8NvjgcDA4Hgz7ZAv5zun3IXmpjz0tx+rtn/pZMJUiy",
-	"VC4mYUZDM0S5DZXYhaEx6UCgYDhj0H+4CzYzqCmFkXEkc1jMvg9LUxsB8P75JidIQXtwLX0cWkLxjGYb",
-	"1wns+ozEItNnJ/oSX4ezPpsJRSWsmAGLEJzhHndHAm4Z1QrAO8MCvDu1SpoWGewdQTUslXm6mxrxNqVU",
-	"v0YpLmP1zCDoHGP7f7x3l+2wPVglt0RZIYWyCfsHfsFPkRoxqSivOnHLYydi6pcHlwRg3OCYIEGRueCH",
-	"4K2nGqMctx2XO0VekR45h5/LQIzAkGBI8FxtmfYPGw23BwSF2JzlGq2R83zTym25srSQcJ2Smq4g5Bx+",
-	"DhVGEthkuHv41jab4K7UQ+I2xalScWA6+WOpYGZPHz9+vHP/3gEjrdj06fa44F4q2/w1/xohPhS+Mz/C",
-	"W+ECTXCLoupz0uCoyQWKPzZ8np60JSBgsKZWD5e+Dn4stbbbOHpQ01OvpXFm4AQrUeCMnBGSEe81DqHH",
-	"V0QiImCgGniHhHfIUMLD+myMeTtXaAoWKSs0WDQ4CHtFgQcNtR3St2D9Mm6zCUbVzKk3f8qRtZQw2tz4",
-	"gywNy3VGLDCsGfHNM3HkTq+BCOKKGjJWFgWT50qXwk/GTsSc5RrfhVkmzEi4dKDNlcxhMxnG89y9QVuP",
-	"hFCPIy5sEs8/TeLou0m8Bo3ckfAfYCXwJNW045DtgbT3+QE7Pn349CkrhLWiNIkjffh22gexYwT/OYT/",
-	"7KQJTYlTlVCkoNy9CucL32U9EnZZWpOqdLvPXiuJMDDQskspgNairAJeBoAmzxfASm+G6pgV0lh3Grli",
-	"56W+DCcNS1exXvqbxzGgFAzYf+O4W7qNOJW4rznQXShfAWsIO6QYYfPND2GxXcnUQyfmpqwHzzIj/ySO",
-	"SPjCAaGTp6Ed4PSc8LmN1wwW0hfP6LnsUixrgt2D6BaVv0gDnrN3+I5laZBYwtPbSWQ2QDwwZAzGB6vj",
-	"w1SVg2bh68DDj+h5SJrd1Zv1tbiyD+nLbRq0r8ORIh/0z7nCIbCjvxVi5lcqnAc31183esHqetBM3SjD",
-	"cOpK9JnbXDpNimGEdRpt5DZdQXw9avUQzYZgw8H1L7ifuSelvbSx904MwBPsrjQ6mA0stGYzXRQkc0Ef",
-	"eOOO/c/SMD3jbyEqr466TF/yc+FX7AhPj5244yUzwXKJNJMouKkElurDv0j/QsOq38AE+jgYDPDc46Fn",
-	"rka/c4XL0qOv9riDoEUdjm74HeMluMSD/YG1quEZItm2FmyTSMA22+hSBrZZiCTcLLwfOKTfVcCcw+Sh",
-	"sVr9iClhVsAtjm4y7evBYAAsWqrzocLr00vfQpOLFV+DNY9oZqAEoGAJZd1siLqhnjNUJJvDbqes1JUV",
-	"TifeQCk7dtAEmL4kUA0dKg9LQv0cwkB+oA/sB9zCH9h5yYHe/zBUP+zs7IT/w4Oxfsd+iKk2+wEB/UmH",
-	"gokQ4XfEOnE1PuFH4K4JPRzvZWTxA/frLjpbXaexGsl+YM+ePj8lyax0x+AHat/LiE5JipSjxI2kPlI2",
-	"ANjhzUriGjkKViITrvum0sp+ANXKWD4ed3bbPpLmKNQ0CWGvR8zh6sQOAye6Nc83jYC0ZPYDwz+ksagl",
-	"wbRRwEQpDrqvvEZEoyBRGdoYqscN5RqpE1ELOgjEhqB50v/Izolle4FxD1WHLn7IuDthYIQFYvnZZyBw",
-	"aCU++8yZYKdoqM6n5PXxM0GWBUMA4fAKbEXSktG6pGtiHbqjCcINPO210EJYgUDNQ/ViJtTxy6fMmzZ8",
-	"LZkpCfeMuytUzxxkt9rqccj+8B3AKfp27vYHFK9j3KWghUJFAm7HC3hpH1cXXnn6CLQ8JTLrXHEGxLZj",
-	"H8mcsCkvQIOjcqck/eEpuNBvhNsgopJ7RyS8Sv+to1dgZXArRQPCp+/2Wbo7Ebywkz+BULCLRWjpz6mw",
-	"pcyMg5Pb1TOh+Ez253xapEOFyrDSrpNe6hcOF2LbE6bHaJz3VAhN9biRii2Uuu+luFV0YHfdt7+COh6p",
-	"r7U5VKkr+g0ctqMgfYo9mNQpxl316VGCcfW6oTw3fQuMBEb0+YPB3spa3hBZi8w2IJib3f3dJiIf66XD",
-	"reEWcfGJYxz4/vYR9f7w9BuWiaKAbteuDg7SSeqq9IC2mLPZZG5kxgtKM+2h7YOxieC5wGXGr/e2fTyw",
-	"6+j+rhd9Ujecmm/DeK4rO+6bIx5FImDC0hm3k0OZkxic0iAOn+ZiOtNWqGy+81sxRyGPnLtOY5pKAwYX",
-	"5ayu8dJjQ2QBksY7XEuSsF21vnTXHbXn/nowM1eWXyXsskRvz3zmcgKciBbFqPNSAOs9osNDhEuaoQJd",
-	"aMe1dlb5KvGMU9l4j3/vBJkeV17NiD06nukPFdw5VGf9taUnQBQpBcoAsl4j9kbMUSs82N8HvntvMCB7",
-	"GtCNoRpSqgoYYfCgD7cCKkvqRM2RzNMj5ymujGDnMBCrw5hFCT7C/lB9rUlnl17BrzV/bAh+iPWNYOMj",
-	"NdLLAunvd5ySuvMUAqU5i5dPK4EKbQhZRBUQqfYbTGPwFi4MvSr0+RCjkkDncTFjqNTt9ff6A9bDjZDq",
-	"nBKvsSmWi5lASVArR6Hnwm7jJV/QcEjSR10lklRRvUwpmeoyaCNUmFjV5il4LUcK2mdtbcoVSDeRBI8y",
-	"8i0IhqheoE6MCTFO7tvG5mlLvMFsYwse+A2QXnAg5Ipk8GoGp0VJJaiPYO85m9drRLYib1ALklBD4oh0",
-	"7sVaEdveyBK9cYcsOaznDyDZ/Oi8bUd91yYlZyOB7pl0sgpqNzNX6pMueaQseKMa66F2mhOMMmNCoaAW",
-	"Ymu9Rc4tAjgB+oXMBBBNGMrxjGcTsbPfHwTA4lJgr2R0fvb04eOvTx+Tl8G9WCdqb9WvQxpzWTiPgznc",
-	"3b28vOxz/Lmvy/Nd967ZdS3iO+CUkbYQTUcEZbkYh6nf36MHHdveOty62x/071K+ygR9Np7xw9/noiux",
-	"xB3rfchFDTXgZ6XOhDHIxwt5Ifrsa9QovDDQDzWKIPQw3zrc+o2wX7muWqFZ+wNMjXC1veDPWAj4R4dw",
-	"TLT72qqd2AV5bVrzwGHCatwbDJY1E8ZFgM+KFyi8NBxeW4d/+A4DXaB2OUShgJFaYHKCRYTvP9QzN1SV",
-	"34tRSxf5ZYn2U1EZApgQV/70MrLZt9f3iB4RTFqSJ7UCc6MS9lKXb3CLfJEZtCIYS8dwYU+eu5Fduycw",
-	"rt1ZwWVrN9qx1QsL73r4EEsfLds0zGPpJsTC69KdgJg1L78HQ2bEOMG8fVZJUPTQa7vGsXfNbXbs/SA3",
-	"WOh46KB6+OEn7D8dP3/2Idb/VWzuXbX0pFGsSWOEapDfwFi9n85JcSBCVmWJE7w3uDtUdSBee1dYOtU5",
-	"Ee0Uq+zDlUkjchb6kuiJdeX9gY36yP5D51vhpTsKuY8WIfeJHySOpJeeCFvOd7BAQ7rNKmVlUUf9QssG",
-	"SOhUo5+A5NtIohwqpa3MBAaMSWtEMe7DyPF4mDRSuMkS4n5ImASH1ZzsU4hOK0tW8PMld/+EduUDkuMT",
-	"jFwQxnSdV+yeWU3reePzCW/dvf6tU1ra14pfcEkxkauOdj3yFcc6SH9LT/Znn2E0w+Fnn7UDGBZMQbr0",
-	"Fg2UiAnrmSmKLUG7dUJlYElCaQhB6GFxGq7TBhQ7mw8VeBqjH/vsibOHZ3p6JpULsjv++tERS4Gg4R2R",
-	"yoWAk9Zvdeqwm+G7hJ1pO0FRuyGGMbD2GpdiX1tZsuC3xuIjoL+Qy2LL24WiBSPFKqIp24cYccs6vAJD",
-	"Fdu600YJ7k4XwJGvvR0M4UPVtLZTQjnOudE0mNH7tbEb3abYBVKcoXId1BbqhcsGU37oSwbWugCi9ABD",
-	"3UI92sMFHTZBN9a7anHs+7uku9kavuP22gwo/LfXZEjYXq/JRvb9sjajioNrNRoVMmzf6ce8LKQwlrWK",
-	"woVrg2nuHWOAC9YYwDqpHov9AwD+Yu/i6prerb6Fvl96J9+yXtAU1OgoAHZAOboQdbbfCDrb6wo6696g",
-	"+vbs1v4lxLD6YFwMDxhc4S4uBrEVaE7QY2e7R052sA4n+5LnPsUIX9m7/pXXijufjcjppTV43xNdnsk8",
-	"F5i9cbD/4Po3Xmn9nKu5G535iXhz4MYPKd1XGlCtI47suO93EMbc8ihsIUjuOjUamqwc6yx9AH5OtYrR",
-	"yDaWts+eUhpLCITTKhOR89qVY8ISxhRJTt+MnHrvilBK45yBpfAtLRH2cAkXuc81VwzfcpW4Puz9WqbR",
-	"4Kr+3K/U4OD6N77W9gmmC/+N3sFjXyMPjqi0hsJJXVQqOmk95NeHvp276BFd646uvpPenu2A9ikgjeKk",
-	"aweuVzvLSiUemg3Fcec1jNyzaA6rowVX3cRjnMLP8jri0J7ppTYGXCbz6Ur+DK5kdPTQP505Iu9voLtM",
-	"y27gBlcuBGLicZtp814Xj3AKDOOg39KoE1YKl+gWmGAL1SLkd+lSnmN6s4/DsRPPKuvaOIVU5BZnEn1P",
-	"qW9mpMfg9IR3QkOBj3qUAnQXWnC7SeUFjz47ca23hhEKG8Eb4ROojAiN6EO0XT5KTziyg20NFWYeIkKA",
-	"ViKYeSzUc3ROXkzXRnHfGYXRDrDtCFBYHucVTWek7I/c4h/54GoKWvF4Shgi5TTCocKS2j6mOUTlS5sE",
-	"76KfbR1KhcYw2AJEtuRmqEw1E6URua99HYYG3gnTbqYRsePW+BDsbw5XqPE7xYlib9rFiNbjcJqQL99p",
-	"h4pMbhzNB5i/pESA/2MvPNKmMyDG9cazCZcKYyjP3PghUu5g8CAZKnT+pg4qxIzc2879fIIoaL2D/f2E",
-	"gg7AVZlNgghXByYEDgrtHYW0hqGi4UN1rud7A8gk3d/fTpzNIspmgAwFB3ACfMh5OtGzPHKnKj2kMdCJ",
-	"w5hlYtL4bThicO5hZVzyayj4iQ26c2xGIbh7pMQlROpYVghuKHXbveNio9094AV8Pad2IA3Y/zLyHkhq",
-	"ZqqNZfuQtdQuKe+Hgo453yzcggIuUHMSfgiZrpQ1zCVJ+aa23SikA7w3I3A7x9No5NFED6a0fJTm4HYJ",
-	"3KiJ36JtPNd17S/qCexjI8zCGgmVm5ESInc1CNNDNxkYboMMwALAi8wFcLgiZ/7yTeT5BD7TfipelhBV",
-	"BL9gRzAXfBs6PMIwBmjERfnRWNwIEowvRyx+h8Hiw5suJ3OKvz0XSpQcg49T91btqMZF3u4SbYioP/aM",
-	"4j2FG+SwX+p8fmtyTRhZkEaa6ZauHH5Lrtr7OGpOjNxEcTPY/zOdLUH4eMntJNBy93LC0hbfRqS/5hST",
-	"VT6l/2Ay3WANme6hVuPCIV0e7K0xppd8Xmiev9L6GS/PBb13b50FMNWMqkk/F7nkr+aEdX6wv7/Oy87l",
-	"DmLgY2XBZfE3KrU+boeruigP1Ce5Fwr9mY6k2bfZbUiys0Lb/kydr6U/3sDGg3lWhbbokcDOzMV56mb2",
-	"8uvfMDnl52KVbviy0Pbl17/5kNohjmHXrUKHUfhMKk6WtnW8zjjLT/rgT36z4OBEimDC6BR9cHuMP+Uf",
-	"4Eqd1oH8QQwM+fBTXr6BNHyf3RwgoBOP5TKWmL8LkCAqJ12G1zVcZ1yJgp2JQl+SvoLXIsQ1cgrGwTCr",
-	"oaLsDN9+SMuOUr6hdednuu56n37zEa63uTj/1dWNwkg+Xeif6YU+/ebjXOg62WU9c0/jUrfv8NMFfAGY",
-	"E0WZAvpEnYUZARu4CaOqR+EsvNYOKYmAbnN9y5kvDc+4ZWn9fVprb6hdeV1vu88WIqD77GU9d0qQbUMV",
-	"cDX3+fwYLz5xGehYnJ9bl3QCDYJLGhbDEYWjBkDtULnkSFDciDSlWMk+hXBvH4lNKchYwFpX1shc0Oo4",
-	"rAhIgCYNUJdEyBgnQ3yfxQZ7SjgeQ/JpDQDh+sFo86E6GDxYrtVFi/Kz0+vqsW2k2A0+yACoi2WOYmde",
-	"m4VktoRizFyGd5mLsr/1SQf7pIN9cId6nKyE+RUe7CViLzEXWJPHrOApju/cgvfgucYiH468YUpy2+bN",
-	"rGapS5V0DMkXCUkp3p+8fsaFoGXOfkLmLqeQQkuis7QZO8am0Xzvx+HqXxCpx1BTQs8nIxyvTWlgIg5E",
-	"WUOSBTtuMBSq6VNodS7KxZlhlNmDQ+ZxM+CLMQKxD9UJ1hQ0sfcSEYMgawKZp+ki8SfYzm0ECNw+caex",
-	"/USEfanFjkYl8k/E+hOx/ghu3nbK9wf19C4Act+yRk9BF3EvdQRGhwKAoc42XRZV+00L2/tnGE+xAKq+",
-	"ROluLPwn7funv3ffdCNKdEZarLBNr6mGJ+uo2Q1ExOX3jD2NwDSg2SbUSTQZl7h4xm02oURhiNSPO9o+",
-	"ChgVQzXlPl4KfawB6OtsziYccWmag3KucQ9LFjomCDdCuAyySm8qOJoG0rBJAIqlhyqXBeLhbTtwpOmM",
-	"lwIlGwep08i9PwxZO0OF1WuwTIevV4NN/PLR9XVtIEQT8b4NKuNDhQVY/vpf/7eWw7hGXuzHizwKdb+h",
-	"8EeakIA4VN4U8eOf9wfslz4ogb0+ZY9fHrPTb3e+OPicPcfW2ReDweBRDAzZ3MejxdgAGhYClJcyxzVK",
-	"fAjbUDVwEPFrH0vgQ9qO6/RuXFpfXodyJ7yYCpIt4d4cdwZrNMM0fJGaJmpKiNoYKm7h8FL0A+b/tqM3",
-	"Go3r0rmIIvkfcx8vWVmpo1bQh8NhNA70eSFUxFV1ZscqJLloFbxPUeBKgzx7zysNQVp6QZihokRt9JIj",
-	"ngHFVdCMrdYUtNNoLBkqeIj0i1ITxqYPDsDBu6gkNEfBnGzJlaE4Cne/GgnjDxySUKikSMYlD85AqkNc",
-	"MREy1vCPkdJ25H8DpCGv3NSBPXDVY2C+sFR1I3FoTN1EywzlnoUEnLGEGBrAOzhEQPR4sx2aZnyMokAo",
-	"6LNx53BXR9GFQRQTTjE6S2xb3zRLwfy89J+uciQfOW6hq8DQGiJMCJzVlQUK80lX+qQrfXiZ7YSEE94N",
-	"B1ajga0pugUx6Hr/SYRftvt9/eGdV64cSfxAYQeR+QhvOkW+Iqph00HpgWq4JVbrXSNDpfTl9mGokCBC",
-	"Md3AMS05GZAg47vUXRniKIeqp7Rdh1mQIAcPe25DTlxKdx0qbwfzJryEikxy6yuwRF4MnNUlJ0YLC+Tr",
-	"xBjv6mFGxHGxNLGRVCME/EB0O4WmPlNlkzbHM0NFzFgXuSiZVqLPvm0Vb6D2IdCRuBo/F6OJrkoHnBVJ",
-	"TtK4drC+BC0g7URCFX8JABoH1mcHgwOPpY0Bq6VA3BxCaoH6FbrMzSpf81P1RFNtuc3YWq0/bF2fTLo8",
-	"vmyTTNBFbjLVBF/gEayP0I5JjjHEAF2WhMjt5qmOHzzByW/Fqjyneus/qf8/OStZ3BW4qtwdy1vV/a9j",
-	"Ibfrjz82LH354vQVa5v+om7ShBSj2BhXr8NYl5RA0WIuqSMK6QJ7gauLlRmGKiBnrckx020H3IirD3id",
-	"AXkQ/THZGz+83HR69L/W7fGjD+VgqEKmCflmlusINT18H094TFU/kL7QNdBPbvFP2sMn7WEdkv+7ioNM",
-	"Ml9B+27VP+7g8dbSCVoCf0EoEHFuHImpHlvybI6pR8scJ89d1x+QAFAXq1webv6fEBNu32dYFFHBg+ZZ",
-	"iWM83DNLz+8m3olYxEADLZw/lrlcz3BS9/pYE4awiig3Df7Ghx3G/Xyo6hraZOElCPvmmfdNk+Z4Ff3S",
-	"2x/sQeKXQKyWsp46pmgmkYnVl/Cro0FCI1RpdKhcZDGMrR66h9W0i3fxjmHu/hAdGSo/UOWEE47xJRSr",
-	"AcbQ/cEADcOlMGQ2D9XVoKZM5GGgEmIRQkRd89zEQGLBiG8m+hKnAKXsGBm6yQBQ1w2qlATofpifVCDg",
-	"klILcSorzKbPPfDPhxBjqPGfSHBxM+ugWaSzZrzwxpXWzh+FHUZsDzKWInW7TYPs8vHRtXP7p8v3yyrz",
-	"jCSNONXu93Bs/qOllX0SxX6GEYp4eQI1Smq3XyzyUIHSTZlZU/pyZ/oWhDBnpSQnHeV9x8AD6XIMVqKk",
-	"Xchw4LWrLVv4z4exuB0zMxMZ2MwjchbRuDXsblHOXj2iGvJr7+D+wRd3Pz+4fw3y13c/CW2v5dFPxref",
-	"/vq/UH43bn6/ne61ucelO2QN2bmjOzVSRi1Iko8+QCmQ5x5zPBIExyDcHF9Ii8pJo20DK2e8BTNXE16o",
-	"jahJhQTakJpsM0TNI7J6gWwZ8DJ9yUKPIBLics7EuVQKgUO/FCi44nNJG3xTGlc8ihlhWQ+dv65aA2Lj",
-	"UY3xqJ6UgaG48rkRCKfzdQis/ARfObAhAr53qBIs01NXA2aonuDqwNCaIzJC+HLA2ESQ17XKxKFvFsu+",
-	"hRKNbvloTwg8N4q0MK5fNEZymhfsaTlULkooFIL03qswUKShZT/UzqHHmoD90HXUna/lRuUh7CGGceEW",
-	"AA4JRsH4tCkM1+qTtAneQvd9n+cQ7OHR+ykWg0zPIVaj7+O0kuUuU/dk/GsKcDVD1enaCy+En+JB+LJt",
-	"NWxNXJorxesyciA84eHYo6gV1cXpNGpQHYDHuLkbW2djOMlbBb7cGwyW11v+2AyQluiJ6A7iiNEs/zZw",
-	"vv4WRVviFEhx9bgVFteI6aZvbmZbLKu1nUVRHbaF9GtdOgMLEJ1eVLa6Rtpy9IZ8+mMM+VGiLmENdIJM",
-	"Di1grzsBwT2SoD17rCnhIeNsf7AHznyuTFSlrEFiMXSxUi4NR0VlYKk6FFTxcRGYNLK6/pCz7+iS4hqB",
-	"fwlC2qHSl2FrmYBqzwmzWkPR96HCh8w2OZsAn4pcTomv/OliI+MEoWbq5SEr+eVQ5dzyGoPMTkp9qSCm",
-	"YQ6RvFF1K9Y7uLrapl6CNSlCnzoTc+0Qg+i+kxHnMFp0Nq2Mr2JLqI3G0prW+1RDhB15qxAsSch590hm",
-	"BT8TBSIe8tIgZx2q3gIuk2HnmkpoRXG9dFjspSvSb3y5VzPhJZXmj0N6j/wlkXnDZBUVSHdlhH7BonJT",
-	"Q3UqQMBYqEBlNZuCHa0UFjP9DR8LKNc5p9bxivkAmqGi8mbIjw2xdzHF4QOQFBWt8lBS+wcM4z48/BkS",
-	"nDtogFPnopyVkvg+Z6dfHe/s3/v8MC56RRCTYfEZN2zGS+NL1AiV6ZAlwXpGg8HPYq3/jGI8pwKOvZNg",
-	"3IpOubWi3D6ijoYK6o7FHb1dLFBEJ6jkl1Qd7WxuBZXYPeVTAfWpEo+sHiaVuNKqbsqhtF5OZ++zzzzu",
-	"21CxcKE++4wqTNmqVPW89gd7LQR3HAWKit5y5QqX42ON7T0Rs4LPsduyEimWiaJS47iitVe4OR1vbbbx",
-	"nA6xBFf8YFQyojndQADATVTI84mlebuuMToJBkwRwf5S2fqMYAknDI/18P0lzoQCuHXJEKDvYPAAwcho",
-	"3s0iExIUjxqnayyVNBMYD7TsyrWGzuAsO+IEJAU6uAeUJbwOZmhUZN6IebhacHR6KVaCycwFVAsGttqo",
-	"3AllaUoLT/bZtzjKhyS17IAh65CFl2sQwqFy1epc9WcKR/cqyMLxTImOgaBbdwwV55oVEXqeYbpivb4c",
-	"Tsp6ekY1sLaPHLJA2hanUhctHnWLZPNM+OrDvQMw2Xs7EB5QadjrV092voACaAWRPrw6O3QdAawEnvHl",
-	"uyiu6WDvi8FQ9dzUIb3iDOasAw5mOtxKj9izJ7BFD0+ePaGCfkLlAF/wTCrMTtDGHcihCuWioa/0F6nH",
-	"MKDtgaWAL8wbOZuJ/IidFVy9wTZN/EOf5kWHnArxYr9Oi6MN67OHWJvQBGcjAVWqOVEgVxCWChhifVPa",
-	"EfZDrV1AvPsPQQTSlwuVYkO12DdSYcHWuYBapalvIcUP+H7qK5z6IBT/sPsiKu+95Et8HRlS/TJ+bL5K",
-	"mi093Sr76N/yySaNnxP21//6v7NBq4VQiTG8jHGA4Wx7Prrih6EKiwDF/7D/upeaebZm6tNqFl7wP7Ax",
-	"lnlLqCSwYAPWo0dIFNvbpnqwO+xFhAQ5EyXsJKClOknAVy6foQ7IELuwQeERajBsG95XtwuxxEnuLbyI",
-	"nkIKbpuNNLdj2xtk4fd2D9F69ehvE5WbxG5aPUQrtt1nJ/rScVpXyhD4dZB+oCX8FUkvxpLRPYj7laa+",
-	"FGRfVXO8BSgi0INU297Js5URUHUeespFJqe8IIjZhMoKEl1DIqyQSqV7/Xti5y4WjdZUt19XhqvceBBI",
-	"DZVR0q/510BQn6pxiFhlhXzTqEdIEGZUKD+sSEkFGjnatUCI8YXBRVEQmwksBYjsnPB4DUzyjmFwpwNl",
-	"xZNFr6u4wG1euSXN/RISqeG+Mm69hvR7AmIOY74EPuMReyfFAGQfR3JdHK6nac7PAMSOYDgxCR8fOhg8",
-	"+JxkoagupgN8nblKsWsXcqXj0f18uh3ODK4xAavDGqOUSOvYg0Q0RM8JYjZcvEBYiWyBlYaFoCp4BcqJ",
-	"4m8mYaEJr8F5hCxg9MjTyBvtkFqhKajbAW+gxoIXmUBZSUxy9VVBYXFWJOG0x9AiVqsjlD+tdoiakKPw",
-	"KGCf8jlKQmeaAqZRZarrMroiWXcMNpoLEIrLyKUPTTjsXTTGulqq/iz4Je/3+6nfN7LMXeEqHA5VmqZD",
-	"9Qsny1DHEdWdTbTVKBXs7LGeY62LLHR7qOB4J15rIoWyyQ886U8CTUg8hRkqv5WJkvC8SJ7tJYP+vWTQ",
-	"H+wN9pNk5RODB190P7Gf7PUH8MT+4F73E3eTfXriYG8Pn6DT439P8OV7g+TbncHgYH/JA3t379IDd5N9",
-	"t6BL4ghOqs2zriKJ/7di3mGug5OBJy2IgcgyXPad04QxPGqJOe89yxptMproaNUcetm4bqEy1LpjC0kO",
-	"aFbhdSZIHZG/bJSRJH4LRYfqIQbJHUangfm0UlyWDchL/2sv2gv/wrsPhmxSRYG5yZZXjJoNLC4Ecn74",
-	"8kzkRCJhzlOpngl1biexQTnG+Pt46YIn1XVZgmVVJwf6JKMyVMfpgbzpaHXptPmhWrDhJOQTci851hAQ",
-	"+d2GOUdBFPrSZStYXOgUjQe+FqU0Xu9xvfm1Q0+gYnWQGXbaMl6AAr1OtMyZ1oXgCg/DegE6LuPZReiU",
-	"lfoPifn8KTjnZ4hLqY1lPFzksbTRZY49GNWq0Og4ubLDebFBJa7lDgxPb7z7l3sD4CGO2Av9rkJGq/oA",
-	"mV2Df4a+a3iJS5EJifmJTYK2rOLqDWSdk0p9aIQaGNZyWv0pHObnUHzL+QPo8N7qFbvtOBl6pFlnxttX",
-	"mrfHRT/0Xf1+Z11ol8TzYqi3YpngZVvM0ojq5Tksijw9crEc3icYF/qBcOiuGAZfaYhaPZcgo6BG6Qbh",
-	"IxEb1XKapRhC4i9Y0l1mb1QsJ4ppCPb1kzhoaKgeiRJoSxsmx1Oa3z1MYk9EVTTyv81Q5SKTQLIS1spz",
-	"w2o0LkIpVCYZqr1+1MtlY4hLE7kPWeonBUWV9uMmMl0VOWs4WVuP3233GHBJpHKhKq03DuI3nAcDFmMK",
-	"lNvqcu4drBzdLsHyhFnkrbbu9eP4xu7ol4Bw1Mh+d4YKdxoIBCjyPdC44t6SNqQNvt7oshdQkBchakpB",
-	"ThlREHIS2jXRyLUAhOOlwmUnW7olgeewAXp5IkoBLHEJ4I0vz9TGvcEWsG2IQ2qckEyXpcgsGjK9jQG7",
-	"bmpsd9AvxvJSju22i63ybnPYSb/k0naWgHKLhm3QelHcFLx6NFSfx8elARJwyFI4FLgovIDjcD9+NsIe",
-	"YL2gjcBNScjTFuAHaLBQhIkxf6uAgjdCB0NsIF5tJqNgMcC78hmxjrqmgSK8QNcLqc1mqMijdozpIIcs",
-	"ZvjjiSx/5V1XNcYS+tLQ2vbkq6cn7OQAyGtRCAoxS7+sVA5+ExjDizMjyguymxvWI+DpUKrq9cPXz1mm",
-	"c0EmI1tFUYKNWMdDVi8B++v//C+ETZqwaLHh66GalQIMm4qXrmA9nm54I+MKzMfOA0aYQTicI5bmAhhl",
-	"SjewPkX4C1LLJ1jFPGzkdp81F63hgJwPlV8h74xDo6LbcOeXLPWllxBrszYfKjMDLmgmQlh2ibQOPtNy",
-	"w5ZVBUf/RYlxe9jmrxP2q4TtJOzvE2b52VChVy+AYXDHpLbZrBRjeeWWAA4Ln2ljSz2bCAfSFeDMHY/i",
-	"wP40LRT5mRtpRLgktN9U5YlsyZ5JwawhVwhK0bWX7GonPmmT4v7Oxf6vRHmfltCfsaH66tl9drHfv9ff",
-	"Y+mLk9d/PBnspWwqjME4VqnY45P7DIMYkClpJaKUX9Z7fvpVMlQvvjyhn158+Xv8maZ6SBNL6CBWCrzi",
-	"9IvDWU+Yrg/wUFkJLgKfOwCS0QzDX6ltTykE+TYdzLwR5/AME4o4HmL78rKUEBBHUQoYT/D82bOXbFwS",
-	"xpYGYeKrV69eQp65CrEzdlKKGuKdK1apTJSWS2Xn7KzKz4Vlc+GiBCK8qhrDnoBAcHOcX2WJRnESAsc+",
-	"gmIR6MwqO9Wxpzb+wMGizGeC1bSnXxv+9BnwfBR439OaRuuw3Jq2YGncWna0b1Azw5HcT9rST68tnTaB",
-	"Bilev1K3GlpJqpMTP94/zpLaicTNQKG89R3aB2GEt8A6vZRoal8OhIZgnLk07C2ltEsnwqpMtNWmRgVM",
-	"h0XoYyNqB0CvVubALzt2YUlRWm4Q/erYbudQdGbTuu5lnTtRCyt32kkTwN+XxIKy1aGgsKJNiVyaBT3y",
-	"ktfLfeTCekihAt7hY9RDeJe39CAsKGpWwrhQgWXQqs7fPVRRr5ixUct7bR0c4gr8WXAb7nU3CvuX1ohi",
-	"jBoBZAKjTcDPNFLzKnVtVKhjeg4qkgp6iyJ3waLQFxY2CZCfLpLCHY2jEJ/AZN4IAY2DMtE5DG0lIGiB",
-	"CuSwxbyuI23I6phwEzfq1BQ/NdIChqqe3XJ3olvA92KIt+/vcaP6iUAcG/yxk38F9ZOOiiwbZX5d1OQn",
-	"FJZP3oUPb+zM83AarY78DG89PIudiOkm3HyFGdR1tPt9CMF4d8uG0HEdg0bkMmE8K7UxMC+6bx6Egrgm",
-	"mkl9gfLITnrErmEeoSvHSJ3+gaYgmdeAzjQuAsHyDIDggevYtCX6BlGxpSrHIlkBvK7G1BcYm/s1uO6b",
-	"Gc9hRLeT9vwh3SjNtfmkJvzsC9G2bylvndZbUxi8ULgz5VaUkhe36GxxpTNqi7XrAoOyM50vRYDypTWf",
-	"hzF9yLvR6mwlKpQf0Kfcww+CC7VwVDYBhFpy0DfGh8pE6dTSUnigJz8eOOrG6uwNM9oFojtDGqq57tUM",
-	"rc0p2gVTlywhrmZc5SIfReY2V/ArxZIQgMxLQe2pC/VNQ52GlPV+/DPjSa1ZlSKzXJ1XBS+ToarYrxnf",
-	"/es//7e7ULKrPUJdNux4FH87K8WMl86HBwl2lEsRJkogTNKiR84/PBqjDdtn57lZu59dnoGxYgYel0JC",
-	"soiLwgDb+gVEGZO5dfos8FhZDlWYp9k+YpGWn6A5FZvwxmNEHAj2/Rl34M7086/dF+zHv7B/+1+ZG8Iu",
-	"dr8dvJOlKLiVF3XJj6GK9gSU9TOMmK07uOOSAlAtpWkA2v9uD1b8x798sz1UvX94+JvnELLMfvw/7/X3",
-	"+p8fscdVyYHG7D58+ur4Ifvd6+PnUJ2tzx739yBI3wF7oQuNsvVddvkh1g7NUdXESG5UXnsHgwcrQK/a",
-	"ZOwDwV+1u/mJlMaF2S6VaRwT8uf6ZnhTgXGl3Txz93vYr0/xbZ800I9WRWCBVd4cjWbpeX5fUbBTTVuk",
-	"U9eDS8Fo/ga0rDWJUk2LPmlaPwc0p/e5Squ1K8zPX9MHE5clN6YShnFWcpWDqAPNsF7I5d/b/4KdSWu2",
-	"a0sFBIIpggegFP+hMiIrhQ3eWvQU+OhwVcyPQsqSKD1uA3yPMpLDABiqCTcTCgLA2LRCnxsm7XIx5BUM",
-	"9QPJHtj2TyRwYN/XZA/gNiW1M8ltAAQvKJThfu4X/hMD//AEB+8243RYIkLjSMWaLJueDnHouSiEFWvT",
-	"lxNxod84DQdbOnLJiHXq6GBvu1azHIKxA713JemiPFjvKCux3ZzadFbcLlLxCIfrScX17P89TKyvXz99",
-	"1Mn2DxZXi5blE8jiz0LMha14/2tSCpWbD1nYyjis1yXFrJrAiVG4MxoshgrCG8P5j2qSpKbQM0i3xjzM",
-	"M25EDHKB1UihF2cPPn2ELdUh16l/I61jRevhwnOXUuX6su5wfwD4i8AqS134vG4jsQbUj3/eZ6ePWO+S",
-	"l4C4SJaUH/98F7+k6IdtdJ9oBV7504m4nPDSQmxpaVnv6ekLdv+L+4OdfTedb4Wx55jMgkEAezv7pm48",
-	"YXs7dwHuYH9n3yTsZOfAJOxgZ4/cUXuDK0gHhbCsbbScCFhITjH59cKaZpi8ocBITMuLK3sdtapNkjGm",
-	"kMEJNFRp6OCQjXlhqCbXhdQFGdO8mczU5Swj9HYIFLnQBQZnYOTiWFz6pH1AmGpvjp2I0kUYhE2HrG/a",
-	"DwwWUVVRuKhM6lKaehH67JgS4tke5sLXsxoqONhHDPIHVUaAhx7TUsUnAmNdEeCyp3iJiA/WrwVa/2AT",
-	"8Voxx9CTSD7EtMhMJIvlX/WlGqrfPWTIyPOqFIbynBqFXxNWCrBpWl121YDt1ihxNEv4yKoc5duBKv4Y",
-	"Bci6+gizXTtxGNfpZXitI535MaaLAv2IQ5TA54vxUxdLc9LhYNxCOvUzbjt6F1fX9G71LfT9lb5kU67m",
-	"7TuZ1GIQBkw3CWhCaG02ItLLRul/70bi3I+BOPcbOJz7HxmHk+7TslgcUUpYFLi6fkZJwAFReU0aP/nI",
-	"bl8selTKsfUSh4Ox9Bea4r0puhzFjBYzh81pct5IrKKzfkvF4kjq2p0V2vbNxfkHEr+wl0aOCvWbtrLc",
-	"a7aQsLzklxSYWMs6KKUcxrKDQ6ajEBdiZZlQFkUD5XgbyURDFYlCtM4hvc63hqIH3QqBEUOFQMQ1j52I",
-	"UJUF8O6TDmFEaUujXsX8Xhbann7zm0888BMP/MQDIx4op/xc7JqL819dTYsbJE4gafjExm4fZjomvZQE",
-	"gbQ7YUTFbpkrQd8iq0qwGgJVPBO8FOVxZSdbh3/47t13ocP2fahLVlJApB43AinqgPperYyb7X593uGt",
-	"DgyoJwTrHLflLxrFN0eZwsBFTdSkW5PFRp+qC1EawerafzBeb6VroHvF7dWPdzX6u2NfuRrGwqtcYmFT",
-	"WfSbtVXEZdfLdYJHE0k8CWHcUVZF4JtZDULe6MUFLy50801nkkNSZ33UwMHtUsah9bdZR8NUjwyLajk3",
-	"UBS1wurSZ2ymC5lJES+re6Gr1ZdPyaoVP05fdDz9DPw6wgRUc/xzKmwpMz+tqIZGv40rRdv63bv/fwA=",
+	"7P3dbhxJlieIv4r92VNQMMsZDFJUZopEAcOkpCp1SyklKWX2TEVWuNHdguEtD7OQmQXJqEz90bsNLHpu",
+	"Zy4GmKsFZj+ue4BFYbF32beL6WfYepLFOcfM3NzDI+hBUcqsXhVQKYa727fZsfP5Oz9sZWo6U1JIa7YO",
+	"f9iaCJ4LjX+eCqsXx2MrNPzKhcl0MbOFkluHW2ciUzI3zCp2xQvLzsVYacE0FCnkRX8r2dLi7bzQIt86",
+	"tHouki2TTcSUQ1XTQhbT+XTrcJBs2cVMbB1uFdKKC6G33r17l2zNuOZTYV03Tub6Ujx9tNyHVxPBMnh5",
+	"z7AihyYLeDzjdrKVbEk+xYrztV35N1qMtw63/mq3moVdemt2X79++mgL+vM0F9OZskJmi78Ri+WOHLOs",
+	"LIS0O9lEGSHZG7FgPc6gPCsM4+xCqZxlE1VkYpvZCbdsyt8IeAMTVoh8KKGLwlhm+FgcMSMEsxPB1Exo",
+	"Dq3cMyxqsz+UfrS0XtV4o77uQGdr886vnwl5YSdbh3v7XyawDuE3zLq1QkOdf/j98c6/5zt/HOw87I8O",
+	"d77/YS/Z2//y3b/ZCstlrC7kBU2ONFbPp0La9hUqwntW5ELaYlwInTBu2EwZK3J2VdgJK6xhei7NqlWs",
+	"Grntaj4NjWO3X/ILcTLXRun2bqdSXNtRhl+kTI1xOWZaXBZqbtiMX4gjxs8NDGusNL4dF9pYfBVG8XYu",
+	"9KIaBlW31bXLrn/Q3dO5XHUE9Fx+2APwDsqbmZJG4IH8iuentFvhV6akdYvPZ7OyyHC/7s60Oi/F9Nd/",
+	"Z6CjP3Rs8SWVokbrQ33Oy7HSU5Ezs5CWXyfsSit5wWBHMqUZZ5e8nAum5tYUOR0fqvaQTX3Zofzrsxdf",
+	"J4wz2sHsaiK0YJzJ+fRcaHYuSiUvTMK4ZHP5RqorycaFKHMo4g4IU3ooNZcXgl0WquRW4FtcahZIFx3z",
+	"XAnDpLIMpmYBx/ZdsnWi5Lgsso86e7hRhFFznQG5NJZbARv3vAAiji+J/vQ40VQGW11ciZzxUgueLxLG",
+	"h5JewYlVc8s4Gxc2YTwUhhc08XwqWFGRIiSJxhZlyQo5hOFfTOy2m48n2I1cyI89IVa9EZKVPHtjmLiE",
+	"5TOZmglWFkiYCsnS6x1/dHbwnUn7W0j0YCfw8rHWSn/MbvuGmYCW+wyGca7yBTN8YZiS5YINt4raR8Mt",
+	"xmVeW2QgFu+Sra+VfaLmMv/Y8w6UKQ/bsTok4rowFnv2ki9KxfNXSj3j+kJ87A7ijIrrTAh3OozQl0Lf",
+	"MyxTclxczLXIWVlMC+rtmdCXRSZeS37Ji5Kflx+9wzm3/JwbwTIuYSbPYa15NhE5k+oqCWMoMgEciZnM",
+	"rQXyl6srmSBB642Rhl7pwiKPUhi8ubnM3OgN1Ji7PXYuMj43Aq/t0HZhhhIIK5f5+YJYlCY3uRPYybbB",
+	"uq93I8YTx/tKqedcLtylY34WMnHPhNOjgXYWhqlLoXEG3E64q+G+lnxuJ0oXfxQf9Wg+L4wp5EVSXZdJ",
+	"uASVhgtBvRE5OxdcC02z0hj0d999t3M8txMhLfRSLDMs6VdYOqWrgkuWIo1KGbdWF+dzK1jv9MkJ+/yL",
+	"B4Pt9VJEkxWlqZtplQlj4BA+lrawi485g9+JstxxXEohZ3NLXMC5FvwNcvvzUnhe0h3HIzcDJkWyaBgc",
+	"26FU47GQORxRZD8qCj4vhbs2X0szn82UtiJ/LvKCv8L5+NgsBR6Je4adUKs70As4HECFlGxIMYxnmZhZ",
+	"00ee1rUBXTjG50BsnsK0Yd/zvIAyvHypoQJbCLN1OOalEc2eVKWZnWhhJqrMzRHOJPahFGMLfCGzKHVB",
+	"l4S8KKRAqWrM56VlPTMhZq8s6epXEj+cCjtROW7FWdSPH7bOefZmlPEyG5XqamRVKTT0YDQjxk5cZ+Xc",
+	"FJfiuRd2af/C7uB263ArV3O4KBKQyuiDvcEgaZONiTeFJa/anBZyNOPGjMaaZzQNP6ytu3PNH2ckEzVV",
+	"JhM5N7bICrsY8XI2uXE3HuNH7xLicGDRNywHvN5IjUfjYtOSUy5zbpVuEf9PJgI4yCsQ/tmYF+Vc07+0",
+	"1S6FzovMHuEPZSdCG8a1YDy/LIzSC5TbrJiaG8VBaOdrPhXUn+unVGivml+uNQdxcy6Lt3Ph3sNquQGI",
+	"cuNRX4+0+bBbAbZyKS5FaZyOgj59EJfbX1YUUUE9Mm/nXNNF+R77X81tWQg9ypR6Y0b5Bxusb8fYOeoj",
+	"/ig+XFugT9lwvS+FLsbuxlimBPVt/+OvHv0IUndUhJg/rnPWe3ry7e7JybfbbMoXDGgr4xe8kCB8WDOU",
+	"Uk0LkFBQZu+zR44K7w8SxoETYq/P2OOXx+zsu50vDz5nz5EKsy8Hg8Gjocx4WZy7GyVuno5Yyc+VxqN6",
+	"zzjyzYywBhpm6sopzz7AjL8LT9T534nMwoRWV9NLVRbZYsOb7TFKpeFSg3tprHQmEn9vmerG2viKWh7q",
+	"+184m1wsHUqvviY6FG65JDqUar0iOpSrXRCb0/MaBW8h1516UCPWXUrUSO+tKGwXSrpBqQZd7FCyTuU6",
+	"FNiExgGPS3SuLBUow0BKbqV4hvXyiIitJl/ISt7YzXex5PP7eKEaW6Ntw648N6uPY7KWWKwnBM19Ut+J",
+	"y+ewtmbtS7+8jeIDtnYNv2+jwn57NO02priQWBHIDjjB/a21d8Cg/yC+A/qDwWCvZY8dS14urLiR2tfp",
+	"NWnsu5sxkq23cy7tTUVcZ77Bb98hd3hjmdfwTXMXYv9c+dZpjhvaUISTjFNpsGV4/WVgJ0D81QKEXRCJ",
+	"QQg2ffadUyEsf269WWQoq/MJdRg+nZXCsIxrvWBpYUbBspGyc4GGg7R6RIozUnoXcNVaK3InGQ6l/44h",
+	"K8KOR9e7x6PCBEYHylaDypTMhLT4rUywN9z1x4kOT8+iOstCmJot46qQubpivRmcJWm9GsHzQkqbe2wq",
+	"uGRPz5iv5cizCUP5+eDPf/+f9vYfsF8lLFPTqZLs6cnLnednbIbnGHiKsVZTNhVTpRfbON6SX1wImn3Q",
+	"10xEmZPKmdYC7ClkdCkMu/6//8cB++f/zPKinCNl/Of/zMbE46lyPhXsn//kh8unai4tPMj1gnk6AsyN",
+	"DXUX8mIoYaclTIOO2nXj7ZyXsPtdP2q8Hs8yLfLCuhnW4mJewjssePbiJYxbDCWa6Y4Yr+piM6GNks7k",
+	"4W0BWph5aYlbrJ/TXGTFlJdmmaKcQlfBKI4K1CmXC+Y/RnWq4DksXEV2LCN1sunHVGavndGMbuZcWIGz",
+	"NkLl4wrpZ5104E/NyJ+QzShPYUa0I0eT4mKymueIueebBJaqTriC7qRKv8b6Rm7sG//lmUBiFrbhrWe4",
+	"qqE7xU22or0xcntjeZ95eek+611NhGSp32UpHEWyS2/Xt1R8b+21+F200fN5XtjHl6IDNa8fkEpCaOhH",
+	"QRt6xQ3LlRQJE/2LPkv1XPYzLbgVeZqwFKltn0ht9ZvPZlpdxk+0gG6KPO0vuyUk0IM2yz5w255ykvUP",
+	"FbQcKmqvp7Hw3IodW0xF27e5sLwo25nIGde2yOYl1yZhhczKOSp3uTezarQvcKNkv9XLIr6Gud3yA0y2",
+	"Ag/mWv9+1To+UxcbrqK49E5BncSZaLcsyTONEbia2/p6wvH2MCs2D10QQJhxo8vc6ZoPnWoZGTl/AUfG",
+	"unAPZrqwQhecLrvZ/LwsDJjJLuZFDoVbdAj1e2Uo6xeL0zDA/QLqZTbTIhO5wKpocdn5ouW2GcrgM1UK",
+	"boTz6fEzvbS7poX0Cr9laRFFyQ2XF5ZwbkW+PNNP4HOGhAVZDKicZWpe5swZF31ZnC3JUhAIRI7EB9vC",
+	"mUlpS6Zkm76aLKKtfa5UKbisH5ulMQfKu3ygIp0IbgXoEdfOneiIyXlZNkcw4bBVJHqLXOHfNgykne2H",
+	"WsicS8qh9UJ/c7sKOxE6MiI4py9kDahHQLVzUdcSo4b4qjDCDSxWEy9PXheRoaZnoJWKZjuqjOzxrUPR",
+	"Ipif6NTZynQCbBUep1YKauDcgBi6Yh3R6c1/A0szFdzgmUXWMl7K916wdnmm6qHfcWGakuqU1AVQN1Vr",
+	"yW41720eg/DSX0UR7ZqhmvCQpZXID3ceyfxpMpRpJO/Dm6aoD8+CtA50qlASngX5HCvRAt5cisD9jcgO",
+	"m7A0iOtYCmSiOS9HILLDAyeXG6xlqqSyShYZvMl1MbZpn0VPWS/MGRBBt2G2mVsEQ3IUyVdWAWGBfZPZ",
+	"csFCJWRmRwlI6Tco/nF5Ifq+QXQ78KvEuGWFvBDGHmIRKa6Ci6gp1UzUhDMUl1A4eBSssui4VLkswttK",
+	"htsfsKkylgGJl3YoPVdCbZikcoD6Thh7AaIosSkksrKeEWIo098+fsV2L/d2rRYyN+l2nz2tHXU2l6Uw",
+	"JiYdZWFQg824GcowqYk7i1A4GDnxqIyBpwDmRrK9AWv0cyjR0ybx7VAF1VL1kKjTUy/psQbBBOetNAjX",
+	"o0KOcm5F6klxfTEqSqzn0tm50QzgK2BTjrdyaY6iUd8zLBXXMziuYZ+a1JHRwg5lvcvV/lI6zGWCvUaa",
+	"C3PolP9yPl2hVqsr1FpUabEyzB2vrWQr1n6tOFuxJgy/ik5WpfDCnvi9v5Vs4SYnIlWf6ojkOGKbbF3v",
+	"wMh2LrnGOYYhIhF6Do6+bpj0wI8Vfz3j2ZsX4yeF9Q9+tzxmfP4Vz96c1MaNj0/Pwtjpt5uAM9fnx274",
+	"+PJpNAfua5qIU5oHfPaimgzqbzQj+OCRmxb84dsxT+UjnBlysqzULW0E2FugGnoZp4SozjzIbjcoBUEO",
+	"Df+7QSgE588C2cOW+/BK7ZgCVB1Z+Iq0kkCecPNc8tIkbNB/APRy0H/48OGNCsuHDx/WVJYP2ntltSqf",
+	"we1nNlTdnU3E1YRrZLehEnKHMqz39OwF++LLLwY7+9v+Fg+Oo+AwVhYSPaWbl3abLIlaho4KfleiVFcd",
+	"C+D6i44fX3EtQabfoEO+SNceNdgU1716PY2O1Ead1CatlTWhpTqdl63MSXV7Ab/XCz+FZbzsJ+ykLGSf",
+	"nUzEtM/2v2C9vYdf7m2zg4f3tw9Zurezb9IhMtqkHDwXCyVz9tM/7cNF23P93j6CT++bFF10wjf32dmj",
+	"I5buQyXMXim426UR2RwIiv8s3NRYI+63I5ae7hxQGRYVSaD6oeTn6lKwX+P33pcKOW10+b5if/7H/7hP",
+	"LR/s7JmUjdVcs+WWhzI0vRc3vTe4TpkVslbEeRDh16jGVePAdtTvIZiyrWQLpmMr2dqnXzCcrWQL+gPv",
+	"BtcdKT4s6h7VAH/d93/th2enB/6vg73wHdQPO2NFTMSLGX87F+DHbYRlFMjAenCMPz+Y6+poz4ByyAuv",
+	"fPLxJQ/29jvFm4x2vv/1v2kTIzAKaFOjgtfYk8aIfRe4EMGhk6Yu1LqPOWzyEtjbTInxuMgKIS3yvvX7",
+	"3KQk5WbqkuuCy0yk6NcjpjO7SIi1pRNtSMskBdQOzeB3QPYSljrBDzmndAzycuLqRbcilJ6HEqTnFk00",
+	"z4hMjLhtFdsqpgsEXv91/cpYp9LilR1r6V0WaWrWip/+OyiDY9rMQt5mHY9XZnngTyWbqlyUO+LtnKy0",
+	"SudCHzK4cbhmvz8fJOx87/vEPRgpXVwUkv0en72d81xzEEbddwk73/++5qXVzRjv1DX327q/mgk4abn6",
+	"YRHPSRRB+4GXvANL0MmmnGxVW7WtXf8OmHFdXPuG47lOmPnpv/X+9v/5P/7+u7/d/vP/8H/99H+CeebK",
+	"ANsUfUfzXZuyO5u79RNLeuT1x8EFsfBg0EPLoFUbnYx83GL9cZwsy8WFFmC/G7OxFiJX04RJuGPYLNKR",
+	"ROYcckcdXQptWtnVV5GlD/YzfU9kJYhbFINmvV4dv9/d6w/6g3YduXOBUvKmY/g4fPgu2QKjoGnTGWYW",
+	"LA/oZksdoe45HZdUXsXV2d/xSWGflPyi7fxPBL8shLEkvd1UEco+ZxOuUQNW5N3i3pI46rBVOxk8ZxrG",
+	"mcLYQmaWzq/xIsWY5Ij1dr0ycOBrB0RfwWlAQbm1e/RqBDro1ZuKPmL+o/bzAXd7ret7bV1HkntTz5/j",
+	"R6C4bDs+7lauJoz1cJPmaHUXXgMxl6iAuHEyZ6povR/Iqy7oHhw3kPjhKs18qwm70Go+g6iHhSPHhaR7",
+	"1BTVzdLdhRem9iV0q21X11ytmpEFEDEn8jqVhZvACj0tJJGF3pxkWeeoVLvdtm+p4kZt203jOsWP3kVa",
+	"DZOvoY9h6nNxWVDXTW+xe72deKb5v//XK/YbJtkVjpuZjJfitgNAI8yNI6Cv3PdwFkYKSTwvyxfjrcPf",
+	"dyEZ3zc50JdaYIiwkoxLFghuOG81BxMyjWrhtiFp1MnDbdSdaDWY1JbQfT/59MGKax4NpUt7+30vb2O5",
+	"nXc7JWf0aeSvVB/G65PXz1mmKrFqhatNUOAsEUjP74w6Ua5v3deBgrnr7MZy7jPQA+BmHmVc5kXOrVhJ",
+	"msIXoLbOlBZOs5zyuVVp8MdBYeIaCDRWjAblsngjWA9lENh1pPCFKYrYgRWFtzuTMaJGJ76XbbTMj1VJ",
+	"sPW23j+/U1eucQqIwEOeO/ZFwk4rCyPQncbMp/CP9DgTaURn2pmbMKruZ/i7UGT5IL/y0eSCzaFPqG9W",
+	"UjAH+UBeGLQ8dIoxMAqvqbg3I9RLi/zOe+XaziZKGWE8JoGpZN2E8dKoShPvbn7aA1yiMiRAGjhzW7UR",
+	"naR8Lmg/5o1RheHe+biirnLzhi42bPyPQqvRhMu8dIu8vLngkzoxMBTI6Pz72JXQoNKYWecNoFU+z+AY",
+	"FXJcyMIKvz+PSKr38yIF41oZcbOvBqEvEAEP3Noyb5bUES682O1on+et4l3dPvttNMaz7G1nsjmNDcl6",
+	"+TapyZD16x5lorolBBoI9pVI6A2sWdAIBM7XMxwVfQ23RlJTd9SEvUgbsSRMteo/EVNGPlE6u1mp1FC5",
+	"rHBImCoyGOImRTmouzB5zk3R6vGycN4C3gO1iv8oJNhDc9NK/G6lmvEKtptv5vl0yvWCRMhZoYVZLW8X",
+	"IAXxS6JImQA2umbfc3YKhngqNRuBkmLlBK7g+SLRjBs7ip3Eu9Olb+NS7aSp5Oi1ENfPuAXS4q8nbtO6",
+	"40KbpWNJz48r4HdDQn5e0Qy3DSta65X7/FlhNnXgu/UG2kC319hKSyI+N6Op0jduyd9x81yRZB9B9txU",
+	"6mtxbSN4naVlMFv16qL+dJlyEvE201a/kGJJJq3AkfKCX0hlbJEZ8F2ufqIDXNhphW3AabCeVKQVUhpu",
+	"dK0UIRaBEXsnMmK7D8goOsBPvCGbJIV1MdBQR5vYWrPC4qCwXbpug+hzS8Eua5p4O2lAMZykIGSL9kI3",
+	"Nuy1A+1eVCS+3bLqoM9q1TZpfnHbPgenBFzL9minvcHgpz/1GouKasvaVG/v1n7eWiwn1uHW4yEmruO6",
+	"R8FFo7jldnSdcsF8AUNINVjgliMltmuVTqep8UAp6IgN6Dz7rXYX7m60t5rnJprK0NWwiaNlWjGH0cZc",
+	"Ol3JEoFo3YfRgVpJUM+C4qCpUkIPW8Sz6rPjyuELzWkzwtAYkQooPQr+1hTNI2lJvRW2/vVWsuXdprDb",
+	"5G3e1eum6vNLqvXUVxq9Oq7qj56ehqbC4N0tuakTfs02eAcGv5pxpVt9YNAU+aiy+y3741caKPzIWQ0K",
+	"MsvOuDGxF2Hk2VVXVyy13OQn7kztv5nK/S515jeE4t5MMzdVJN5eV7esbLultswJ9x01CR9P+o7F3BZJ",
+	"tb7v10iubRTvkQuhazMt0Rs2xvgPhBUsQN5EzIRCOpmX9YLb5m8cOSRXnCg+b/uI7dEdQzqf/q1BETp4",
+	"vT2OTY0b8MQ36c/7LR4RLvDnvUJ51luOPHNOriTUE39TmxpV2oBcr+b8tCAUJ9EWpL/ijq/KtG2wJcMT",
+	"qFxGFH8EjdwoX1eftryqmU86AezGI4jLR3oi12Kjr1EcVPtRChuvm0S2Ykm6h0XW1mpZvvM7x9142EDC",
+	"9nbAjypvNS0ehWjU5ZLN47sqMLI93G9526ydwAjydYMprA5SJ6VAY7lq5qQHbkyro6Ca27ibwueVuLYt",
+	"ih5SvgmKNnAoNrqQbxi37FzZCRMSQMb8LFaKdQCKMBQ5AP6X8LdzBOBauKKBq6+dpbvpr7eiQ2tRQ40V",
+	"bx6strX3DhgtHqJw/zhvD9709TCxswdLc9QpSOerMaJLND0kD1F8xhCwjU0VRhlxySa8HFdhmpaX3g7s",
+	"Aijq7h8puJKOxdUoHD4zGis9MvspuKPumj/sk1EGLTdk+xpKahm7DYFhFDARJg+7UY9EQJCL0EJa9+Bs",
+	"HeRWstXarY5ChJv+R65q9GL5zlfsXj4RV6eh+idKn+2j2OCVYiuj0jgD7RaCVZOeyDAXXQlXImmd8SUZ",
+	"s3jeHn72O8FLO9mQJlSMpZ899YY2Yr7oODXU7ou/2fJdOKXCzV3ummrb3E/PugVNNnc+YRhEKBU7kdLO",
+	"gTfEQUZrARqW+Zfq8xF83FG9sSaGcn14fjdYgKVK18bnL9W5LuZQiwwCvBYbVLep6idENd5gqlsaeU01",
+	"0lyYRterOYmmPIojdCsUutO6JStWoi1gxcWuI+KJF1cS7/aQOEqVeK9R7XZqwxH784NOftjfN1MADJLP",
+	"779r9cx+Kv+OoCi6QXc22PUIKKfT7RezW9+3oMg8PfkWxn5y8i1EblPtAGr+d/McoEwo7DKyMTkRCjNZ",
+	"EKflCpHhvsjvqmsR4cgZoi2n9MS5kb/NRu53UgHDuDtQz+U26ueDmuQeQtnhnug76IwaRn+3Hp+GIu/g",
+	"1qA5att77jYPoNKiNIKg83uBAUKjQsnlG7Nd06px4wXiZeL+Ltl6UxAAuf8+cnONT2KRXcIhdP8930pq",
+	"H2K7lWTvf9IsbiVbYXJbu+CsHhsCMa6Td2eKePibNUDvuWo3nYDK+wOhogiAIL6eKHsE6QggyMyGU4P7",
+	"CgXkjmLzEofp5sCtMR6mVrIXqNlLLWCb3VraiKhJd5HtBoM+YTPRBHnzOyuImTwCdPWmFNZNw1APAVir",
+	"Yau+fOe3dHeJqprSMyzZxI69QahqrGmlGvP9aF9QCkvYkLeqBhoCGyrnxNjgRIE86TnhQlWoEwlLS3Xl",
+	"6ClcwmkItGmxXVLpdq5kdXBfdwteF6xJdXWrVprSO8b8uThArwHy42tboGfcCtoOt7qzOwUdeWgzbgKi",
+	"w1ElYGiRieJS5Lc7PLc653mkVV1XKmhfOxkNmuqfiJp3pOFtOuvqnFU1ti5kFdmw2Vl7NYllb6/MLLnG",
+	"cH0DNbYJ4C3yyi2M8MZ3uN4nsIDG6q3o+iIQCPcBL0vvqu/f3wZTs2kGpV61zvJtwqIfeYQ2j1snbXDb",
+	"cSHSCYVNNZ2VDaYemVmWZrqwRcbLEWrvU+Bj/X7YXgeM0lgiX0u2PiYe4rX39r48uL+zz3wZn1Rp7OA0",
+	"bDNe/nqU3dZ9oza423THz0XCFrfuxSrQLvAftROxIB9RP7nIhF9NFjDj/RUYYE1cvtWjcpwho0LQTRof",
+	"zOptEYlK1cLAPz35Hftmn4XO0f5L2P3+/Z/+9C//sHt268bermysbccnbG/wXg2a4mLK29m1sDP+5R/w",
+	"XAVlDB6pumdzivWM0NEO2IeO4ZNRqe7c+hkU+grLtHsT/ss/OJdyCfKnc+Tebrpi2whWRearXft7V5Mi",
+	"m1CN7oxQzM0ZIA8vcw75Fi3j0nlMVtGN5U2+FgXpeTCXb8RieECkG1HnmgDrG4P/OWMs6Txjw+IqtmMD",
+	"SDwq0B7BHPP/XTzXbg5tjfqPfJcrskFQa1zrku2z4QEPLVwUl0KuCC5t4PYsV+iMu5gLMvVeHWlCGaaa",
+	"cQrTkLol1OiUOTFAmlci+Get4j6gU+PhGfELMZqoeVuU1NfhcnXnLFfOqRLGdVu4uM1CJB102NIAvKMS",
+	"9QwAgcaqruKsKVi7OqPcxuEiKjVSs04+w6H0C/f9Cli2yD0jXpqbgiF8LxoBB+HsJjFxWT2X7dukEXRA",
+	"hGY11buF5zVt9+4khhq6EXHTV7u6r7fUuNyCUJPM+Z70tKbDuMEuXKe13a7tWOvyfbICfnfQf/ig30I4",
+	"bzbfdiKQlbHOhWSjKkrPJV3vXDI1tztqvIMRWktYakNJSYh6afCfc4jmMVAaUltyF0IkuF5FircbaGkR",
+	"/uH7E1hgsCHZqvNdih0f/HiNBeBQr3QDZRuxkXfgtvTlF18e3JiY6FbUuruyYA0ZX7UPQJkOwjrND2EX",
+	"X3FMnkx+reCncC7iqGKvsgzpKfAcb7fbc3+mK8BRhPZ7oI3cB8rRSs/8ujVSD1I4fMoW7DfsfMB+zc73",
+	"fvrT9RFLa3Hy7r17FcBg0qGsl4N/93/60/VP/42Qzr48+Pzznf3GkaGatxL3h2tiK9kK9XY0eOOYnvna",
+	"ol8vfI347JuqWsjvWgW5LDNf3BhkvFyK66SRvHdclFZok4Ts1sFfIFI8EBxWWRjrwHXZeK5xq8KHNBXr",
+	"QaCWsN82AoV6gYkF24b33UQx7Vw4KmvpERpPwyH0qdgXFBqLaMLpv00bFtOuqdLrJtN/izbTvf0v2o2m",
+	"72vp+Ms0H6wzGsQzUtn3b2f8uZuAyHVIjWSTqAM1waXcFYgJb8fuvtj0/a08sqno5u7XhLJ+m51yiiXb",
+	"hN4V3uFtAXijhh4cizYmojm4BsvvR3BDwN5Sxzc+ieuUqvUIOOJ1kAWre3IvIZbj5e2IaojZcyK+13rC",
+	"kyvl4XJq8MjAxk3Pi4u5mpsRlE9vi/8Sm0067OwV8FApwiyOsG8ApYd4jNVPcW01n1EyffhNX5eKwKr9",
+	"r7fwSooLDCDCvxWODVinqub6sIey5xAhYxSA1ikDZUZNr3yIio6hjGCQtxOWzqWzrY28mRKcAc8QQMyb",
+	"vdzeqy4Xl3FIKmL30Eg5lKlUduQ1pbAMKbo4spSoLW1Iz4dvGuuy9FkR2WXXsqn+u6jMqAp7aVWUVyZb",
+	"0Aupc8sLGcA80nEhylLodqiOqeBytKFTlzf8tClu4BvQ8wW/ywjxgVOsWn4znFUDvHnZKWY20+q6mNZE",
+	"L/y21Wjt81r64xRFu8MRF8ZiVXcR51fkLUF+7VjUlxjB5/EhwqQ21ySiAss7Yj1NdWzDZjT1L8lUu95A",
+	"+1KLGadFOLNidousaGXxdq5Cuq8Z10ICz5oLNp8xq9D9usqylVDWa/oBZG76rIohD4ny2E//BI5bmeUS",
+	"Upm0hXa7dkfTu3SL8pVaVbqKN6wAh3q3faIqb9mjxoaIJm1psFHnG4227xvKu74c8PrkhD08ePAFc/nc",
+	"GZleTL8lS1m7ZZOSMKFpSSsPMeA4CxRFSOabCeW8R5d1+yuQxZ4ojEHjZeHS37vd2JbM3qWD6cha4lCf",
+	"QOHW605W4fwrc9SzGScUw5aIJfzAsePrktynf7vjxLWdp8CnWMVgiV2unCpBIWcPBoOV2VDmpr2d3716",
+	"9ZLRBwhsVgvpeVBDcT8YtAIe2sK2AXqfTZS2zFAUcaAkbv9ALa1dpQfLvqCvT596GXrhHUfiyvydP9fy",
+	"EHmdN0LMhD503xy6HZL2t5pi9XqxAN/6MUahlmtsj7WNc/hDxwPyyie6KSw714K/aQfZwQgaodvLN7b8",
+	"IePsr89efM1eUiFWSEwSCPFA+SJh6W5ZSGF2h/PB4H4m8R/hfmVAy92jdCjhbJ6cfYvcf0pfFO7toSvO",
+	"p8J9jieZw63Bp8IKTYzkTX6bNK61M1vLlncL16M4v1bI0Ye7nrJ6IbbRkSMfUlTZTWxlBxT6ssjAodpp",
+	"Nlt8/EjoKDtc8fPShjEhjXMMWX6LsoUZgeZ9rsUtCoOn06gb6GazcFsOv1Nf0wYr9F0sFiUVWIuLbHM7",
+	"1we3kQlI5CAs7SDkWpUFnpNHeIzoGsHTWIHZa7Ybwq8WlNRNtoTHvI9j5p07W7YdDAKxFWbT8F/QcreI",
+	"zVrwfOdKF1akdOLxAdhsUnY1KUoSWHNuOYSQwrxxmv7zBSvkUPoYFdbDSuBwGQh0ezC47yAlT4XVi51j",
+	"EE6aBp+qcSccYMMbaKxhMr5z5f3vF1hFFSprVl26PPcSnGG9ibJ+XGablfxixzGzGJOQk6B9oZhV3qkO",
+	"M//xW2D0uni6aiFrKs/PD8LoW1BN45nrOlGhofUxbGQIWbHnMIMg6Pza9hCAjKAlnZfxpiEVU818dAT7",
+	"C+oiVYRCV2yLGbZCCimgzhTfWTl3EdqBRz+rvH+PWOrzBqdD6c93BdDiUVUSV0PC5nJcWHKFU5qZ+Uxo",
+	"I3LneMeHslOzfT8MHwwcUhAW2aS+xaO5wT3uBw/2JtfzzsuILb6sVegensb1umffhepxBRt7bjPiUcjR",
+	"3KwxHNIRweMB6ynVVbv5r+QXIyMyJfMVBtsx17Qh2LmYFC6PykwXwFiiH4/33+XGkntO3Y9tLt9IdbUC",
+	"MuqGZLo+Sno57Lmw7EJYUpXiSHtziZFKMOMJUIsqiRyq7igpWKCUCYGN8u0V4gGuTYsJzQW4AMHZ2fE0",
+	"eAcJ5VyX7uLcq7HxLvyua1y+bzvxS9x+/Ek3+a33o92QGSPPSe7kF1hOac0hJfTuzSUqY+AEFtHpdYmx",
+	"trtl/B7K9pTfCUMsUm1F7rmKSoiqJf9O6tm/4xCmoazKwEcNL1eT1LiVWkp5ePH0jDZqnx1HGxXr9eGD",
+	"Xg1fT0DvAPUaoSmvNsse69OSs/fPSl4lXb4j8xe5m45WQvrQ2iFWxzi4XHYLVr45d/lSqaCGbcGYgsbr",
+	"lqoNiOdKNzs1i6/0f/7PW8nWP/+p1eFlNeqRP5KbBic43wfviuusX2rWCc6lnvS8I9OzJIg0a+2UEL0t",
+	"WHtedv64isnq8rXLXrY061Zcty/HynW6HnRs83ow6mbEvB5sVV9Xe7R5rtpOUZi0sO5+XtzQ3NCXl6TN",
+	"NTvaDDcYQmO7+zJ0TZQU1WPR9Jy3kTfJORMHiXyZ0pq6sr1J+sQ6cs3O8rulJTmNFflNdMDKAuTjYN8r",
+	"f0eYos3cILCT8/J2ufTXuDVsAmmV8VYWMUq/jynOyEOjz/Naqn2ETwy/YyY8RamUngd8rnY7X4dQsZuD",
+	"hjZ0nFiKLseR5k5/KEbZBHQc3Xn8sIonoaLoIUpgJ75K0BHC1IEt2njZrGuIdyTRrcDHh3dO9nEKFAQV",
+	"cCNMW/Cmb8DtIokp9LR7/zzBcusSlrWQ9vOD+KQ/HAy+2Hv4cP/BwRcHg4cP926ywW4IWIh7d7TC+G3E",
+	"2/UsPCqoBESpFhImERMEgIqEGC9x2QxRfe/hdbtJoOMODNzF0dNRbi7Z0m6LQdPC+sTTFGEjrvW5qZ3b",
+	"FTfHvLRPhMg/As44LsSmnA1R3g8CM77er7LVfxIDvfDIqmrf3ZxMwo38tsjkTR5vw6VyCsrYM/LzGyw4",
+	"yRbq8RvFYuPVipFiY750+1h8UqcNhV3nJ52LzCVgmgWIyUw0tVPwaVtEbYcAM1dY3zMUa9YeULbB/e17",
+	"3C2R1SP/9RrVyde1/AT1eK4bECAbyxX6FpGcG4AZG92MrminaQygy53vZqjwOBSm36euinfVg9u4297F",
+	"5L8vul+ENWiVT+nfiA3xOD0hl2x/9Vq1rsq8FN8WqqxyZmxAINwVskKh78LoCnmpykuvTipas4x1ueyX",
+	"pVMcQ0teytKIQIQh0TJzCagTBls7vKIKSLXTrh318uYN3tYhsfYG2GNBnsNBhHJJNKntyyU3xq/Tcwn3",
+	"U5Xv9C5QwzcKuJ0pY0XOVmRlu5WuqkvaV58FedNMrxvmNTmdS8pV3bJJfYMr3Mkt3ENQptZfP10yDnD9",
+	"OyKymbnsnBUcsh1NuQU3hK2k+n1y9i2Sx9vio3f3uKs8SDctswGiuloZEvIe193mcROn8yhgosVeSL6Y",
+	"PlJvBclciugzYWPAuuZNjAAymHd3E66FHnYals8deWO86WaA6zVw9LCC4by0Rt3G3a/WJ6nS96znhefS",
+	"S/AfMzPSsloN37GZ0BXsWvL+hKbrYW5bte4T2Ckl/x0gtH3gnAWbxsasB2xaSgawYvZuG299i+v5YxLs",
+	"mP6uKxVC996HuIZI8qYudonSwWR3CJaDmt2noe4u1PoEHdccq7OabN8z4aVLPjnluRhKNBRj4Mfu5d6u",
+	"/2QnlN/us8fgCRdgGnmo+56p7JRoBA8QoSwNbUGADOyQ9NAps3xpikJpPHOJiGfouu4SEaMmrJCM0Klm",
+	"hV4wbocyjfZjSjbaUMy5ZUAJ57XuQt7JSIp9xNiaKrvLXJbCmGXYj8JWKB/1UJgNNnMEJN/YIKjpejsX",
+	"7r3Tla4JzAfCLaTVi5hw4+gxErAzCffXacs+frBZZGW4atdcrNWAVpKkEPL3gW/ETYML43CoVulvA0Xx",
+	"kujlVKAdwwUrzu7u7Dj5yoQve6s41i5Q3vkKRX9kL9sks/fNDF8bbGE0urXT+Z7o0R8WBzLXi5F3WmnJ",
+	"yqMXQKut0JFni/UOI5i8BtxedlwSAwQQu226nU7RLOR/c+dBMlRtMICvPWrwzS2ist4fx7pN6euh3cPt",
+	"e68Ko4XrFN3MnYk4+DmhXgrepqFHaVu+D3dToaRN4OyNxoKKKQZWvk34WbDdkDdVS3AGPge7vEH3JB8T",
+	"VkiW1oriGqbb6E1PAJVRRFkar3Z6RClLlGZSFHZCqro72lbLfeq2r94HMnWJxbuFDQE5ucLj3pt2nwJi",
+	"2QLqO10v6DqpefZGWGCRFh7Rpe7Zaljv6cm3uycn37LgwO0YsIeDP//9f9rbG7BfJeBntus52yoMYvuI",
+	"9iYHCHD0kTWJ5/GoN8wU3tiBjpoBVQbZxoLMnuCbWmGCkBr7qEKmxzdSDaWaCdCm1hyC0Vu3R1CLsIil",
+	"sCLdRm+5UmFTSoqk1pJVCvI3Qpexq0O5N3BtUUQID2XhG64dBwnAiZmaTpVkM6S9Gal0H788ZvuDQf/L",
+	"HVSo0SE128TwcozrySYsiuwGMu3oACwURHv5uU3b3O38uFoUTaraG+yqQMN8WaorRB+ZSxiGyP0uoBnA",
+	"/DfAKXv/i1YFdLXjOjNOjeQMNRZzf0P0jjDiWk/azliNXbtdgpU2vPrK1kGZjq8+mB57s7yY6xEgjlvj",
+	"vuu+8Bf8UqBXPbriEgQARmXfGrbhNsk6Y+eabhcvcdStd66HqGrEwbMM0YW0mvbXc76vlkEy3ivdYUem",
+	"eQV+xSv0c/dB7Qy/Qt7g5YuzVyi1Y7tm94cif7dbfWnSJCA9eOSHXrXumZqXlOj0XDhMawRlW8aFAByL",
+	"iWBCXhSYR24cIbySa9sRSxuh+SHsYXFLBIk287kjjkWO/v6kbUD4jLEQngsq7thRpjUp0Vqy55I73R3o",
+	"xZ2jVtyUFiSOX/kQDlt0YG4uF8cW3J30eOe+XZ3Ue57xOxWZIiPGMsrHbVCpY1fCG4yQtA7Oe09pRsFX",
+	"sMg+aAZr6W6e9FxzvcHXJ6+fYzitV0q6C+yeaZBjirIg0Oi09grdQWvT4zJrBNQb5MIKebPj0u38zura",
+	"q1ij0A2oZBMIlOaJj0FR6k52jZPZsvqdQWJjNukvUeu27lC2Ir9tpGij1s3t7CSbmhSaGVE+GMzdWaZm",
+	"ohYqOpfmsAqyxak5hA0eTHGHVUL6fFrIjgZ/bOh0Lo0PwKUH1MAp1Y+P0BpmQn56fHZMDUF/6yRzY28T",
+	"zy/MSo55fYjgkSnEVd0St095xm4d0rMmHWKcmavN4bjs7q0TqlqLlNA8NFUq/Dse2Yq70XvAL8/EmqyM",
+	"N8zSpjkb266D5fRgIVdirf7NJpdUBGscvd11WIsjdqXwhRPLj9ig7lWxPAtSNaGrb+Sqna5kw+65Uht2",
+	"76YlXMlXBn6yPUY6hEV7JhJZo+83yAa35J3up6VaPz+74bgkFU1opapVko1WseVf/sHPLGUn6Z3ub7vw",
+	"UPbsxSP2myoVCvI4z158w35TJSsBDEIIahqZPD3Eas4eVY6+Pt+yZS6RIEMUjB7i/lnwyxxKn4i5AtMY",
+	"I/BFSpgaLm0wVm92//yP/4USHfnKXW7eoaSvl5E2Et8p+CcAJbNi6nJbUqpGAbFgQ2lVMzOID86mkiLf",
+	"RiAAel2NOSqQDGU1CzxOTg68m+vBkctlQgKv104esmouI0wAPZcYZ9tMsww8MiaGxkJRHJcoYV6X5q8e",
+	"3g/tw95xDVKW1vh7unP9QLterWG3HVP91YOvoKWzvPbsGTZJqbrqb05d02cULXQWSbd3BXx7i/RcIYPd",
+	"RzIdVow/tbzMua/X6Net6B/Bgrg0qTd4BEcf/3/ExJUEDZUC2nNVGLJ6ha31UXEa72qDPXceMhv7bG3i",
+	"Ha2R0V7tH73+tOerXhDu6WaB+rfRIYvrGUds3LnMhLa8kHbRsTlyDzIbNee52y5eNn75/gbKrKVzpWoP",
+	"E59VaJ6b4GLXEEBb2ELvMrXRyEMh4ChWKQgxLLu5FPVtOO+hrnx7F/+p+BMoQjyoCFgZ0fi7pkybo8q+",
+	"3agS8Eg7bpC7h1lwcWZOAFnSQFG9K2aStkk0xNoOrm+W7iqhtr1aA5YaCy1kJoI3IvTAquzNyKhK8xWl",
+	"xqZd3hGzy9V56lvZSsKzM2gk+v2M6m3p822yHsWulRu5zvlGb86AFJroMu/vnX/6DlLGn/p72LlF+hMP",
+	"Vnj/d+W1aZ2npPe2vGf68ZWwCXezdFfckbvHqruhxXhYEZ97hvlyLCrHXruMJY3u3gJa6me7d+5gj+Bk",
+	"VafdZaJANN+wMwrDeksUAfM+bfej2y6K0N1vidC9s9svdkD4UHdh990eX1A3zkDtwrpp19bQtnmCACqC",
+	"58DyvcYb9c0t9qq/Ajua5+HrD0RYVmTtbcwDGeKPKvxWB0jbbOXOnMrWXvDRSW+7BF453KBGBKkWgllx",
+	"TX0nWOwjh/xltSrBZKd5ZoUOiZstP09YWUhnFIfFzrjWBb8QTAs717KRYyi44qxIMvSH4fB6MNiB/34J",
+	"//kK/nMC/3kMD/eeDIfXXzxZkSXpFQgXt4x2uoUE0N2ouxJ5y4ANYgNeAD5vY6xRrFoRWycyLWyfnU3U",
+	"lWSoHwOZ8IgVlmVcOpcMRCFF96OORk5qMfH4XW4gNfavdedBsdvxHH4S7+AygaRZmN+aW/JbmxtRiadH",
+	"zOBcOa8P8shxigQ+zwvLrOZF2X+fBazuhoN1Bre2gI12ADXXkdY510LepartnBsBZ/7GBJDQ7lf+41tG",
+	"PNdDupYF2JCxvkOwuktvH5s0WjIGWMUAyB1WfFrIkHqfeA0LYwK458hWwPyEJD72H/g1uAM43Qrbm0Wr",
+	"BhDzThP8Mnztodq7b0eqAMq0EhU9l5mnpQ3Couei0ppdFTJXVwzdW6eEUMsl20sGg4GfEUrlXS7we1Xm",
+	"wlj3AUaHwRy3u4JeepCGTaLmYmyHG+M5anFEQTCuFiHMarTzw8ardTCessiws872Xz8j74FD8V6YElOY",
+	"7Nu5BK0wu5mWTXPmfLK9KjUXlwUx8z3J/vyP/5HtrQJIDyfsttn0RSlWhLT4rE6+hXCEBTpeKyM63Ig4",
+	"fzhomJAYzCJue+X6v4wPvDMfQWMlXBarXU7DFmXc0SVyvzYxfoKvBNZGA8/WMAQlW3pk3s65FmQ06moa",
+	"qnf8zLVSf/o0arP+JrIHLb06C72pv3imyHgUEa2PEFK8KQ6fAIrfTjQ9SLV1aTfcJgslCCOrMN45ehwQ",
+	"XTx8eExNpwXFMuDHZnuVI/0ovq2XP7hdHPlqiSjsyXvGS0Sr8/1JATepAzcfFzaBox426m0dwjfPAFm/",
+	"Y9pzpBgPPBS+9Qg/0Zp1jodtoOesj0aIPAdrjoJeaRtw86uI/GoX1vdAbaxt9Ai3cXw45vMi36rLaIOd",
+	"h3xnfLzz5Psfvny3E/882OTn3n57xtjXrX6exww9PdHqDrKuT74zvdh9Bg6cc/fv72ez6ffNzLb399fJ",
+	"nP+/nf//9z/sJfdX9OdbrgsuMxGyLW+SYAQzT+ztmj/su4zkl642Np7LLPaECTbMs0eHDMR4ls7UldCQ",
+	"GNL0rrfB43/w05+m/Lp3nbDr0bSQ23/I9kg3iD+xGjPlZVlznSBv+6GsmQKPXBMuXbPJU9ZzxEWNSdG2",
+	"u9cf9AfbcfPs1yyDlNCtYUJdkYWzvY4frnDoahwPDxU52MKq2zb1txVFaGDCInSYiyKTiyhAnyLEHGly",
+	"Jt+VkQzxfTvjBo7iuO7Ite4mdb17SQXdrydYnvoeHKQ+xn23OjLoNh4W7xuc0+XGXeMpmBdjb0Wata3/",
+	"rx6h89Pgpz/1xmouc+RCnW/T9q7745bXEFZ4U5pcVLucc8ge0S0tbkUnbtmtzRGFb7hEw+7sYG0upoVt",
+	"Xwm4Zn/81aMfGQcOliJG4xwMzjHDAyt1NMqu8/y82bfzxrm8sxCRCj1viWN0+V5w6qrQV0ylYFx0WSd9",
+	"XcRFOIp5s4uI38TLjqr1cxWvbOTd6g5mUoH81fmXjpbieI99PCgr56AecLNbBccpXBruSx/Q0oh8ORcI",
+	"Ygy3Kvm5tKj0I7n5skHuux6+pUWvVbQ8nBvUEkvnevnqLGRhC4iNgQhuiuXLlLSFnBfyImW9E3gaW+zi",
+	"HsU3pquIdqIr3/3qDFU+DdXUNkxUZWNct7De32YjxcPurqmpr+0NEkK9iQ2W9k6guVYEgAU1DwQvTwU3",
+	"883AKNfHGn/tHJAbqacpGyQbBMe/KhoMJIfbYpGsSNowWMO03vrW/KgOg13uAO8zFK162776Dl2hT7jM",
+	"i9ynANhgTwHqlVgRi4vjEN7JOpsoZVYhB5DGbm01Pj/j3IgVOucpv3Z+0+TfPTITrlcoPEquL4SxDD+p",
+	"vBwt5IfHwi6rJ3giEPrBXOaoBCoMy/xsxeyfi/eXykbixW00s8qK9jRivGoYmzJvitmM5By6vDGL2BET",
+	"05ldxI6tLefUzKcjfg6evstt/ff/+uOvTh//6GcF+NydjJcZpIUSeaAQZon5bevdLWchxAjcdEi+Cx82",
+	"D0lVRW24K/dJ2IVJ2NZuNVafm9ZgmWeCG7tD2lnjtpPpgz7h+g+D/oOU/fnv/zf4tfjDfupe19yfgYnm",
+	"Q4lqBGJAmkGxqFt0eofecTkVRc6ZsIyX/YT9dX8oTyZaTblVF7rPvmJffHHAevuDwf422997sN33qg3f",
+	"N2hwbxfUBT/9N3KwhEyGSxqPSJ1xDSoM2uaMZ1oZQ2fFMKtYqS56+Gsozx5tB3QMeFwbxnbiMg3AeKn8",
+	"PcPAhHv26Mil8eNDWW0rNfbEBG1SuPEINyZoTdyJ5TFIH0AQpmE3jBSuk+k3Aznc7Ju+b8RRLIpsiTa3",
+	"x5wJOhszn0Lf+Dm6OArm3TEZJSJ3B2koV54kxqcKTZXKYAwihTtLVSNAU6UFhLVwySa8HLcRrT57jNNB",
+	"YiiFPxmQzaqzaTDtqpuOUfUYcCBKo5Z86sfFNfp6mypspx7CIhUqKN3mpr/c7338dxGeL9xvem7wX5jq",
+	"jmxjOHJfU5Ph91N5efZW279tPFv6vd9S6N81ni39XipUe4ABNt/H9ODFLLCMG0Wi+r1azTNzOzVxm9wL",
+	"keOiLNsgZUiaMxC9c6NDQxWP9i7Zqp+ENstg03BWL5DUml5LLd3s3AbZat0UgWcY5e5vJOKGjbsy/fYd",
+	"TljDJUtgGFwIvWslUlKI3FBOJEeOrQLl5AqS1+Myd95pdCZ9KamsKwmQABciB90vfky9qAemsTQa9SGj",
+	"uquk5fjxPcPOHhHqa589crvu/iHjQJmdB/6VqqoEcqukYLm40AL6DGWFyAE0Fhbg4QP2K0rWzcyMSwND",
+	"IPccpJqwWl8MHARMjXuPmPb91lykjY2GNuNsrgu7OIOF81nWuRb6eG4nLfIwPFa6+CPeSIfsK/yWBJIM",
+	"3YrwT5H2GToBmUOWVhHxYLmIQ+JB6Z/WguLhC4yKT4+YEYLuecIgLhQEmafXO/5k7ZAzkAsRJLYXOFzs",
+	"UsXETaydbb17h2bCsVoeErYPrjBCE/qUqeXGm0u8kKocoDVpP1xJCVzvZih57fUSGnhCKneCwK1ynlZH",
+	"lbKvc5kJ4GjKIlsQDK8RMEueq0+IycGqEjYrlTWJw0+KcY0M7i2XpNck7Jtjny8HquSy5uc1lEP52WeP",
+	"o6ykHm6IW+Iu+p99xo5D/xhw9i75YT1/q8/WLXKWwbLrgntIEq5D5KhhueZXks7HbH5eFmYicnYxL3KO",
+	"nntY15rcqw5rJU6/Ck/cRQyZWOGcDuVMi0zkAuv0WiwpRO7nAtmppTStDu7YqbkI/W8oaUEdLrKb5Yq3",
+	"1GImOGI2FwZBGr2KIsXZ/au/YidKXgqJz4Zyh0HyBkeIXTCeFsxI/kaMMmz1VeGfnj45Yffv33/IeinJ",
+	"B4csaBZSIGGM8fIKF0wX1grMgfb61QnxX+KaZ7ZcMFNcB0xTXrK8uMBdy1gv3R/sf74zuL8z2H81+PJw",
+	"MDgcDPqkC/j36fYhe6mMvdDi7Jtn/pRMi0wrl146YUZBNUS58YOc0sEUDuQWujMG+Yc7ZzODklLoGUcy",
+	"V5RW6D5MTaUEwPPnq5wgBe3BsfR+aAn5MwIYoBYM9PqM2CLTZ6fqCovDXp/NhKSU9wGqAgzztCXglFFO",
+	"ODwzLKTxolpJ0iKFvSOohqVFnu4CqmBKoX611P3GqplBUG3G9v/w4D7bYXswS26KsrIQ0ibsr/klP0Nq",
+	"xApJMeWJmx47EVM/PTglAFMN2wQJSpELfgjWeoL65LjsON0p3hVpgI2kCMQIXQ+6BN9Vmmn/sVFweoBR",
+	"iNVZrtIKGdxXLd2SA0Ypd8cpqegKQmrj75BJMoFFFiKnUttsgqtSdYnbFIf6Nc437fxxIWFkTx8/frzz",
+	"xYMDRlKx6dPpcc69Gdd6wb7mXyMIk8QyiyM8Fc7RBJcoV4J0DuK6MNhrMoHiy5rN05O2BBgMVpfqCQjS",
+	"Oz9qpew29h7E9NRLaZwZ2MFSlDgip4RkdPcaF1DrM6gTETCsl7ZxeIcMObwU7nzGTkMYsKsKJsmhUHJg",
+	"9soSNxpKOyRvwfxl3GYT9KpZUGt+l+PVoqG3ufEbuTAsVxldgWHO6N48F0du9xpmJmpOFRkLDsbFhVRa",
+	"+MHYiViwXGFZGGXigEpBmtPMgf0ZxvPclaClR0KoxtEtbBJ/f5rE0XeTeAkab0cPLAoiH2NFRTsO2R6z",
+	"in1+wI7PTp4+ZaWwVmiTONKHpdM+sB0j+M8h/GcnTWhInNKDIwXlrijsLyzLesTssrQiVel2n72WBQJ1",
+	"Qc0upABqi6IKuA6If/5eAC29GcpjVhbGut3IJbvQ6irsNEx1z3rpbx/HCIXQYf/E3W7pNuLw47rmQHch",
+	"TSHMIayQZIQ9vjiEyda0Kw8dm5uyHnzLTPFHcUTMF3YIjTw16cCBDCPzuY3HDCbSJ0nsuehSTF+JzQPr",
+	"FqU5TEOuG2/wxYTpUBF8vZ1EagMEmMSLwXhndfyYsi/SKOhEEK4FWh6SenPVYn0tru0JPdymTvt8iyne",
+	"g/47lyASVvRvhJj5mQr7wY31N7VWriZFiTuwqpShO/VcABouziXtJsnQwzqNFnKbjiAWj2o9RLUh6HBw",
+	"/h3CL+SddKS0l9bW3rEBuIPdkUYDs4GJVmymypJ4LmgDT9yxf10Ypmb8LXjlVV6X6Ut+IfyMHeHusRO3",
+	"vYpMsLxAmkkU3MwFggXjXyR/oWLVLyCCBB8MBrjvcdPTtg6m8EL77BI97nClUIZr4C7DbvZW8ybWMvK2",
+	"FWObRAy22abs/FcTVYoknCw8H9ilb+ZwOYfBQ2WV+BFTwqyEUxydZFrXg8EArmhEgMbj00vfQpWHJCHB",
+	"7e0EpKDNI5oZKAEIWEJaNxqibijnDCXx5rDaKdNqboWTiTcQyo4dNAGGLwkUQ4fSQ7JQO4fQkR/pB/sR",
+	"l/BHdqG5tIb9OJQ/7uzshP/Dh7F8x36MqTb7EZOdkQwFAyHC74g1sTn0Em7XhD6O1zLS+HkA7W3mGo3F",
+	"SPYje/b0+RlxZtptgx+pfs8jOiEpEo4S15NqS9mAiIonK4nzh0qYiUy45utCK/sRRCtj+Xjc2mxzS5qj",
+	"kO8xuL0eMYcpFBsMHOtW39/UA5KS2Y8M/yiMRSkJho0MJnJx0PzcS0TUC2KVoY6hfFwTrpE6EbWgjUDX",
+	"EFRP8h/pOcW1FRIu7qFskcUPGXc7DJSwQCw/+wwYDiXFZ585FewUFdX5lKw+fiR4ZUEXRA4BwmWRFZaU",
+	"1pqOiXVwwSYwN/C1l0JLYQUmohnKFzMhj18+ZV614QFQpsTcM+6OUDVy4N0qrcch+/33gM/r67nfH5C/",
+	"jnGHgiYKBQk4HS+g0D7OLhR5+gikPCky60xxBti2Y+/JnLApL0GCg/3luT/cBZcK0M9p9pBK7h0R81r4",
+	"p45egZbBzRR1CL++32fp7kTw0k7+CEzBLuzDBf05FVYXmXGAn7tqJiSfFf0Fn5bpUKIwLJVrpJf6icOJ",
+	"2PaE6TEq5z0VQlU9LqRE0fThwYMv2Eyr81JMgYudkbavUHLXPf015DhME5oUPpTpS3oON+wThfDPONQC",
+	"dJ0JS7EFkzrBmBRB47GQuKuQX0QOhpMYcK5yx9bCRQI9+vzhYI/eoRc9bCEPlQUfk2ctXrYhQ5PZ3d+t",
+	"Y6ayXjrcGm7RLT5xFweW3z6i1k/OvmWZKEtoNt0tCynMriP2+I9wvzJIv+AJMXAnqctgCtJizmaThSky",
+	"XlKYaQ91H4xNBM8FTjM+3tv2/sCuoS92PeuTuu5U9zb0h5ouXLPLl5Cvju4oYgETls64nRwWObHBKXXi",
+	"8GkupjNlhcwWO38jFsjkkXHXSUzTwlD+CdK6xlOPFZEGqDDe4KqJw3ZZ2dNdt9We++PBzEJafp2wK43W",
+	"nsXMxQQ4Fi3yUedawNV7RJuHCFdhhhJkoR1X2zmw0FrwN4Zx9HUP+b0cI9Pj0osZsUXHX/pDCWcuIdB/",
+	"Orb0BbAiWiAPUFRzxN6IBUqFB/v7cO8+GAxInwZ0YyiHAQSbjtJwK6CypI7VHBV5euQsxXMj2AV0xKrQ",
+	"Z6HBRtgfyq8VyeyFF/AryR8rghexvBF0fCRGel4g/dsdJ6TuPAVHac7i6VNSoEAbXBZRBESq/QbDGLyG",
+	"C12vSnUxRK8kkHmczxgKdXv9vf6A9XAhCnlBgddYFcvFTCAnqKSj0Atht/GQL0k4xOmjrBJxqihephRM",
+	"dRWkEQQ2V7JST0GxHClonzWlKcaluULlTuDgkUe+A8YQxQuUiTEgxvF921g9LYlXmG2swQO7AdILDoRc",
+	"Eg9O2V9kIQW1EfQ954tqjkhX5BVqgROqcRyRzL2cC2/bK1miEvdIk8N6fgOSzo/223bUdqVScjoSyqni",
+	"eBWUbjzQJB3ySFjwSjXWQ+k0J1x+xoRERi341nqNnJsEMAL0yyITQDShK8cznk3Ezn5/EBDwtcBWSen8",
+	"7OnJ46/PHpOVwRWsArW3quIQxqxLZ3Ewh7u7V1dXfY6v+0pf7LqyZtfViGXAKFPYUtQNERTlYlzOsP4e",
+	"feiu7a3Drfv9Qf8+xatM0GbjL374+0K0BZa4bb0PsaggpdIB0ioTxuA9XhaXos++RonCMwP9kL8VXA/z",
+	"rcOt3wr7O9dUwzVrf4ChES7vMfwZMwF/5+BJiXbfZD6kJshq0xgHdhNm48FgsKqa0C/KAiB5icxLzeC1",
+	"dfj779HRZcr1ArxQQEktMDjBYsqI31cjN1vfQ1HPRq2c5Jca9adibghgQlz73ctIZ9+c3yP6RLDCEj+p",
+	"JKgbpbBXSr/BJfIJOFGLYCxtw6U1ee56duOaQL92ZyUvGqvR9K1emnjXwoeY+mjapmEcKxchZl5XrgT4",
+	"rHn+PSgyo4sT1Nvn8wIEPbTadtj2rrrNtr3v5AYTHXcdRA/f/YT9u+Pnzz7E/L+K1b3rpp4kio40Rsga",
+	"+Q0Xq7fTOS4OWMi51jjAB4P7Q1k54jVXhaVTlRPRTqEraMtJI3IW2irQEouXFRpsQtqtQ2db4dpthdx7",
+	"i5D5xHcSe9JLT4XVix3M+JNus7m0RVl5/ULNBkjoVKGdgPjbiKMcSqlskQl0GCusEeW4Dz3H7WHSSOAm",
+	"TYh7kbACDFYL0k8hMm+hWckvVpz9U1qVD0iOT9FzQRjTtl+xeWYVzeet9yeUun9zqTOa2teSX/KCfCLX",
+	"be2q52u2deD+Vu7szz5Db4bDzz5rOjAsqYKU9hoN5IgJjZ9J8i1BvXVCOK3EodSYILSwOAnXSQOSnS+G",
+	"EiyN0cs+e+L04ZmanhfSOdkdf/3oiKVA0PCMFNK5gJPUb1XqcKvhWeLSAMoGG8ZA22tciH2lZcmC3Rqz",
+	"WYH8QiaLLa8XiiaMBKuIpmwfoscta7EKDGWs604ZN5UVodUEcETx46JShA9lXdtOAeU45lrVoEbvV8pu",
+	"NJtiE0hxhtI1UGmolw4bDPnEp1OvZAFE6YELdQvlaA8XdFgH3eh21GLf93dJe7UVfMfd1RnypNxdlSFg",
+	"u1uVtej7VXVG2dg7VRoleW+e6cdcl4UwljWSXodjg2HuLX2AA1brQJdQj+X2IUXJcuvi+obWrbqDtl96",
+	"I9+qVlAVVGsoAHZAuu3gdbZfczrba3M6a1+g6vTsVvYlxLD6YLcYbjA4wm23GPhWoDpBjZ3uHm+ygy43",
+	"2Vc89yFGWGTv5iKvJXc2G5FToQ533xOlz4s8Fxi9cbD/8OYSr5R6zuXC9c78THdzuI1PKNy3MCBaRzey",
+	"u32/BzfmhkVhC0Fyu2TRqV/lmLjvA9znGGFDSrZxYfvsKYWxBEc4JTMRGa9dfj84VTl5ktOTkRPvXZL9",
+	"wjhjoBa+phXMHk7h8u1zwxHDUi6144c9X6skGpzVX/qRGhzcXOJrZZ9guPBf6Bk89klXYYsW1pA7qfNK",
+	"RSOth/z60KdzFy2inc7o+jPp9dkOaJ8c0shPujLgerFTz2XiodmQHXdWw8g8i+qwyltw3Uk8xiH8Io8j",
+	"du2ZWqljwGkyn47kL+BIRlsP7dOZI/L+BLrDtOoEbnDkgiMmbreZMu918AinwDAO8i31GjOFUKBbuAQb",
+	"qBYhvkvp4gLDm70fjp34q7LKC1QWkszirEDbU+qrGakxGD0t5j1xFYV71KMUoLnQgtmtkJ7x6LNTV3uj",
+	"GyGpE5QIv0BkRGhE76Lt4lF6wpEdrGsoMfIQEQKUFEHNYyFBsDPyJq2J5bcdAQrT46yi6YyE/ZGb/CNW",
+	"y/nu8ZTQRcpJhEN5Iaxh3qc5eOUXNgnWRT/aypUKlWEhcTs3Q2nmM6GNwMFTlmDXNbBOmGY1NY8dN8eH",
+	"oH9zuEK19+QnWiVJr1xuDPOSkM8HbYeSVG48pLSHqfXwf+yFR9p0CkRH6ekITXgh0Yfy3PUfPOUOBg+T",
+	"oUTjb+qgQszIlXbm51NEQesd7O8n5HTgUst7Fq5yTAg3KNR3FMIahpK6D5nJnu8NIJJ0f387cTqLKJoB",
+	"IhQcwAncQ87SiZblkdtV6SH1gXYc+izTJY1PwxaDfQ8z44JfQwZprNDtYzMKzt0jKa7AU8eyUnBDoduu",
+	"jPONdueAl/B4QfVAGLB/M/IWSKpmqoxl+xC1pMaVfpTr6hyjYc5XC6eghANUH4TvQqbm0hrmgqR8Vduu",
+	"F4UDvDcjMDvHw6jF0UQfpjR9FObgVgnMqIlfom3c11XeM2oJ9GMjjMIaCZmbkRQid1li00M3GOhujQzA",
+	"BEBB5hw4XII3f/gmxcUEftN6Sq61unJnABqCsWBpaPAI3RigEuflR31xPUjQvxyx+B0Gi3dvuposyP/2",
+	"QkihOTofp65UZajGSd5uY22IqD/2F8V7Mjd4w36l8sWd8TWhZ4EbqYdbInr0El+193HEnBi5ifxmsP1n",
+	"KluB8PGS20mg5a5wwtLGvY1If/UhJutsSv/KeLpBB57uRMlx6ZAuD/Y69OklX5SK56+Uesb1haByD7pM",
+	"AOSYUNqK/LnIC/5qQVjnB/v7XQo7kzuwgY+lBZPFXyjX+rjpruq8PFCe5J4p9Hs64mbfZnfByYJjbX8m",
+	"LzrJj7fQ8WCcVaksWiSwMXN5kbqRvfz6t6yY8guxTjZ8WSr78uvffkjpEPuw62ahRSl8XkhOmrYuVmcc",
+	"5Sd58Gc/WbBxIkEwYbSLPrg+xu/yD3CkzipH/sAGhnj4KddvIAzfRzcHCOjEY7mMC4zfBUgQmZMsw6v8",
+	"tTMuRcnORamuSF7BYxH8Gjk546Cb1VBSdIavP4RlRyHfULuzM910vM++/QjH21xe/Pr6Vm4knw70L/RA",
+	"n337cQ50FezSTd1TO9TNM/x0CV8AxkRepoA+UUVhRsAGbsAo6pE7C6+kQwoioNNcnXLCRr/kJeOWpdXz",
+	"tJLeULryst52ny15QPfZy2rsFCDbhCrgcuHj+dFffOIi0G2CkAcu6AQqBJM0TIYjCkc1gNqhdMGRILgR",
+	"aUoBWMSk4O7tPbEpBBmTd6u5NUUuaHYcVoTIh5IkQKWJkDFOivg+ixX2FHA8huDTCgDCtYPe5kN5MHi4",
+	"WqqLJuUXJ9dVfdtIsBt8kA5QE6sMxU69NgvBbAn5mLkIb50L3d/6JIN9ksE+uEE9DlbC+AoP9hJdL/Et",
+	"0PGOWXOnuHvnDqwHzxUm+XDkDUOSmzpvZhVLXaiku5B8kpCU/P3J6mecC1rm9Cek7nICKdQkWlObsWOs",
+	"GtX3vh8u/wWRenQ1JfR8UsLxSpUGKuJAlBUEWbDj2oVCOX1KJS+EXh4Zepk9PGQeNwMejBGIfShPMaeg",
+	"ia2XiBgk1RVdnqaNxJ9iPXfhIHD3xJ369jMR9pUaO+qVyD8R60/E+iOYeZsh3x/U0rsEyH3HEj05XcSt",
+	"VB4YLQIAujrbdJVX7bcNbO9foD/FEqj6CqG7NvGfpO+f/9x9244o0eppsUY33VEMT7qI2TVExNXnjD2N",
+	"wDSg2jrUSTQYF7h4zm02oUBh8NSPG9o+ChgVQznl3l8KbawB6Ot8wSYccWnqnXKmcQ9LFhomCDdCuAy8",
+	"Sm8qOKoG0rBIAIqlhjIvSsTD23bgSNMZ1wI5GwepU4u9PwxRO0OJ2WswTYfPV4NV/OrRzXltwEUT8b4N",
+	"CuNDiQlY/vwf/peGwbhCXuzHkzwKeb8h8UeaEIM4lF4V8dM/7Q/Yr7xTAnt9xh6/PGZn3+18efA5e461",
+	"sy8Hg8GjGBiyvo5Hy74B1C0EKNdFjnOUeBe2oazhIOJj70vgXdqOq/BunFqfXodiJzybCpwt4d4ctzpr",
+	"1N00fJKaOmpK8NoYSm5h85L3A8b/Nr03apUr7UxEEf+PsY9XTM/lUcPpw+EwGgf6vOQq4rI6s2MZglyU",
+	"DNanyHGlRp695ZW6UFgqIMxQUqA2WskRz4D8KmjEVily2qlVlgwlfETyhVaEsemdA7DzzisJ1VEwJqu5",
+	"NORH4c5XLWD8oUMSCpkUSbnkwRlIdIgzJkLEGv4xksqO/DtAGvLCTeXYA0c9BuYLU1VVErvGVFU01FDu",
+	"WwjAGRfgQwN4B4cIiB4vtkPTjLdR5AgFbdbOHK7qKDowiGLCyUdnhW7r23oqmF+W/NOWjuQj+y20JRjq",
+	"wMIEx1k1t0BhPslKn2SlD8+znRJzwtvhwCo0sI6sW2CDbrafRPhluz9UP9554cqRxA/kdhCpj/Ckk+cr",
+	"ohrWDZQeqIZbumq9aWQopbraPgwZEkRIphtuTEtGBiTIWJaa08GPcih7UtkulwUxcvCxv23IiEvhrkPp",
+	"9WBehZdQkklufQaWyIqBo7ridNHCBPk8McabepgRsV8sDWxUyBECfiC6nURVn5lnk+aNZ4aSLmNV5kIz",
+	"JUWffddI3kD1g6Mj3Wr8Qowmaq4dcFbEORXG1YP5JWgCaSUSyvhLANDYsT47GBx4LG10WNUCcXMIqaWQ",
+	"7Erp3KyzNT+VTxTlltvsWqvkh62bg0lX+5dtEgm6fJtMFcEXeATrI9RjkmEMMUBXBSFyu3mo4wcPcPJL",
+	"sS7OqVr6T+L/z36VLK8KHFXutuWdyv43XSF3a48/Nix9+eLsFWuq/qJm0oQEo1gZV83DWGkKoGhcLqkj",
+	"CunS9QJHFzMzDGVAzup4Y6bbDrgRZx/wOgPyINpjsje+e7lpteh/rZr9RxvKwVCGSBOyzayWESp6+D6W",
+	"8JiqfiB5oa2jn8zin6SHT9JDF5L/zZwDT7JYQ/vu1D7u4PE6yQQNhr8kFIg4No7YVI8teb7A0KNVhpPn",
+	"rukPSACoiXUmDzf+T4gJd28zLMso4UF9r8Q+Hu6blft3E+tEzGKgghb2H8tcrGfYqXt9zAlDWEUUmwZ/",
+	"48cO434xlFUObdLwEoR9fc/7qklyvI7e9PYHexD4JRCrRVdDxxDNJFKx+hR+lTdIqIQyjQ6l8yyGvlVd",
+	"97Cadvks3jPMnR+iI0PpOyodc8LRv4R8NUAZuj8YoGJYC0Nq85BdDXLKRBYGSiEWIURUOc9NDCQWlPhm",
+	"oq5wCGWJAXSg6CYFQJU3aC4LgO6H8RUSGFwSasFPZY3a9LkH/vkQbAxV/jMxLm5kLTSLZNaMl1650lj5",
+	"o7DCiO1BylKkbnepkF3dPzp2bv2Ufr+oMn+RpNFNtfsDbJt/bWFln1ixX6CHIh6eQI2SyuwXszyUoHTT",
+	"y6zOfbk9fQdMmNNSkpGO4r5j4IF0NQYrUdI2ZDiw2lWaLfznw2jcjpmZiQx05hE5i2hcB71bFLNX9aiC",
+	"/No7+OLgy/ufH3xxA/LX9z8Lba/40U/Kt5//+L+QfjVuf76d7LW5xaXdZQ2vc0d3KqSMipEkG32AUiDL",
+	"PcZ4JAiOQbg5PpEWpZNG3QZmzngLaq46vFATUZMSCTQhNdlmiJpHpPUC3jLgZfqUhR5BJPjlnIuLQkoE",
+	"Dv1KIOOK3yVN8M3CuORRzAjLemj8ddkaEBuPcoxH+aQMdMWlz41AOJ2tQ2DmJ3jkwIYI+N6hSrBMTV0O",
+	"mKF8grMDXav3yAjh0wFjFYFfVzITh75aTPsWUjS66aM1IfDcyNPCuHZRGclpXLCmeiidl1BIBOmtV6Gj",
+	"SEN1P+TOoc/qgP3QdNScz+VG6SHsIbpx4RIADgl6wfiwKXTX6hO3CdZC97zPc3D28Oj95ItBqufgq9H3",
+	"flrJapOp+zJ+mwJczVC2mvZCgfAq7oRP21bB1sSpuVI8LiM6StXHsUVRScqL06rUoDwAj3FxN9bOxnCS",
+	"dwp8uTcYrM63/LEvQJqiJ6LdiSNGs/zLwPn6S2Rt6aZAiqvGDbe4mk83PbmdblHPOxuLojxsS+HXSjsF",
+	"CxCdXpS2ukLacvSGbPpjdPmRokphDXSCVA4NYK97AcE94qD99VhRwkPG2f5gD4z5XJooS1mNxKLr4ly6",
+	"MBwZpYGl7FCQxcd5YFLPqvxDTr+jNPk1wv0lCGmHUl+GpWUCsj0nzCoFSd+HEj8y22RsAnwqMjklPvOn",
+	"842MA4TqoZeHTPOrocy55RUGmZ1oSBLEr/gCPHmj7Fasd3B9vU2tBG1ShD51LhbKIQbReSclzmE06Ww6",
+	"Nz6LLaE2GktzWq1TBRF25LVCMCUh5t0jmZX8XJSIeMi1wZt1KHtLuEyGXShKoRX59dJmgez2NIc+3auZ",
+	"cE2p+WOX3iN/SIq8prKKEqS7NEJ/xaJ0U0N5JoDBWMpAZRWbgh5NC4uR/oaPBaTrXFDteMS8A81QUnoz",
+	"vI8NXe9iit0HIClKWuWhpPYPGPp9ePgzJDj3UAEnL4Se6YLufc7Ofne8s//g88M46RVBTIbJZ9ywGdfG",
+	"p6gRMlMhSoL1jAKFn8Vc/xn5eE4FbHvHwbgZnXJrhd4+ooaGEvKOxQ29XU5QRDtI8yvKjna+sIJS7J7x",
+	"qYD8VIlHVg+DSlxqVTfkkFovp7332Wce920oWThQn31GGabsXMtqXPuDvQaCO/YCWUWvuXKJy/Gz2vKe",
+	"ilnJF9isnosU00RRqnGc0coqXB+O1zbbeEyHmIIr/jBKGVEfbiAAYCYqi4uJpXG7ptE7CTpMHsH+UNlq",
+	"j2AKJ3SP9fD9GkdCDtxKMwToOxg8RDAyGnc9yUQBgkeF0zUuZGEm0B+o2aVrDY3BXnbECUgKNPAAKEso",
+	"DmpoFGTeiEU4WrB1eilmgsnMJWQLhmu1lrkT0tJoC1/22XfYyxPiWnZAkXXIQuEKhHAoXbY6l/2Z3NG9",
+	"CLK0PVOiY8DoVg1Dxrl6RoSevzBdsl6fDidlPTWjHFjbRw5ZIG2yU6nzFo+aRbJ5Lnz24d4BqOy9Hgg3",
+	"aGHY61dPdr6EBGglkT48Ojt0HAGsBL7x6bvIr+lg78vBUPbc0CG84hzGrAIOZjrcSo/YsyewRCenz55Q",
+	"Qj8hc4AveFZIjE5Qxm3IoQzpoqGt9K9Sj2FAywNTAQ/Mm2I2E/kROy+5fIN1mvhFn8ZFm5wS8WK7Toqj",
+	"BeuzE8xNaIKxkYAq5YIokEsISwkMMb8prQj7sZIuwN/9x8ACqaulTLEhW+ybQmLC1oWAXKWpryHFH1g+",
+	"9RlOvROK/9g9iNJ7r3iIxfFCqgrjz3pRkmzp60baR1/KB5vUXifsz//hf2WDRg0hE2MojH6AYW/7e3TN",
+	"i6EMkwDJ/7D9qpXq8myM1IfVLBXwL9gY07wllBJYsAHr0SfEiu1tUz7YHfYiQoKcCQ0rCWipjhPwmctn",
+	"KAMyxC6sUXiEGgzLhufVrULMcZJ5Cw+ip5CC23ol9eXY9gpZeN9sIZqvHv1tonST2EyjhWjGtvvsVF25",
+	"m9alMoT7OnA/UBO+RdKLvmR0DuJ2C1MdCtKvygWeAmQR6EPKbe/42bkRkHUeWspFVkx5SRCzCaUVJLqG",
+	"RFgilUr3+g/Ezn1MGq0ob7+aGy5z40EgFWRGSb/mXwNBfSrHwWOVlcWbWj5CgjCjRPlhRjQlaOSo1wIm",
+	"xicGF2VJ10y4UoDILgiP18Ag7xkGZzpQVtxZVFzGCW7zuZvS3E8hkRruM+NWc0jvE2BzGPMp8BmPrncS",
+	"DID3cSTX+eF6mubsDEDsCIYTg/Dxo4PBw8+JF4ryYjrA15nLFNs5kSttj/bv0+2wZ3COCVgd5hi5RJrH",
+	"HgSiIXpOYLPh4AXCSmQLtDQsOFVBEUgniu9MwkIVXoLzCFlw0eOdRtZoh9QKVUHeDiiBEgseZAJlJTbJ",
+	"5VcFgcVpkYSTHkONmK2OUP6U3CFqQobCo4B9yhfICZ0rcphGkanKy+iSZN0zWGkugCnWkUkfqnDYu6iM",
+	"dblU/V7wU97v91O/bqSZu8ZZOBzKNE2H8q8cL0MNR1R3NlFWIVews8d67mpdvkK3hxK2d+KlJhIo6/eB",
+	"J/1JoAmJpzBD6ZcykQV8L5Jne8mg/yAZ9Ad7g/0kWfvF4OGX7V/sJ3v9AXyxP3jQ/sX9ZJ++ONjbwy9o",
+	"9/j3CRZ+MEi+2xkMDvZXfLB3/z59cD/ZdxO6wo/gdL551FXE8f+NWLSo62Bn4E4LbCBeGS76zknC6B61",
+	"Qp33nmmNNulNtLWqG3pVv+4gM1TXvoUgB1Sr8CoSpPLIX9XLiBO/g6RDVRcD5w69U3D5NEJcVnXIc/+d",
+	"J+2FL/DugyGbzCPH3GTLC0b1CpYnAm9+eHguciKRMOZpIZ8JeWEnsUI5xvj7eOGCp/ObogT1vAoO9EFG",
+	"OmTH6QG/6Wi1dtL8UC7pcBKyCblC7moIiPxuwZyhIHJ9adMVLE90isoDn4uyMF7uca35uUNLoGSVkxk2",
+	"2lBegADdxVvmXKlScImboZuDjot4dh46ei7/VWI+f3LO+QXiUipjGQ8HeVzY6DDHFoz5OtfoOLiyxXix",
+	"QSau1QYMT2+8+Zd7BeAh9tgz/S5DRiP7AKldg32GntWsxFpkosD4xDpBW5Vx9Ra8zulcfmiEGujWalr9",
+	"yR3ml5B8y9kDaPPe6RG7az8Z+qSeZ8brV+qnx3k/9F3+fqddaKbE82yo12KZYGVbjtKI8uU5LIo8PXK+",
+	"HN4mGCf6AXfoNh8Gn2mIar0ogEdBidJ1wnsi1rLl1FMxhMBf0KS7yN4oWU7k0xD066ex09BQPhIaaEsT",
+	"JsdTmm9OktgSMS9r8d9mKHORFUCyEtaIc8NsNM5DKWQmGcq9ftTKVa2LKwO5D1nqBwVJlfbjKjI1L3NW",
+	"M7I2Pr/fbDHgkhTSuao0ShzEJZwFAyZjCpTbKr3wBlaOZpegecIo8kZdD/qxf2O790tAOKpFvztFhdsN",
+	"BAIU2R6oX3FrSRPSBovXmuwFFORliBotyCgjSkJOQr0mKrmWgHA8V7hqZxduSuA7rIAKT4QWcCWuALzx",
+	"6ZmauDdYA9YNfki1HZIprUVmUZHpdQzYdF1iu4d2MZbrYmy3nW+VN5vDSvopL2xrCig3aVgHzRf5TUHR",
+	"o6H8PN4uNZCAQ5bCpsBJ4SVshy/ibyPsAdYL0giclIQsbQF+gDoLSZgY86cKKHjNdTD4BuLRZkXkLAZ4",
+	"Vz4i1lHXNFCEF2h6IbHZDCVZ1I4xHOSQxRf+eFLoX3vTVYWxhLY01LY9+d3TU3Z6AOS1LAW5mKVfzWUO",
+	"dhPow4tzI/Ql6c0N6xHwdEhV9frk9XOWqVyQysjOIy/Bmq/jIaumgP35f/qPhE2asGiy4fFQzrQAxabk",
+	"2iWsx90NJTIuQX3sLGCEGYTdOWJpLuCiTOkEVrsI3yC1fIJZzMNCbvdZfdJqBsjFUPoZ8sY4VCq6BXd2",
+	"Sa2uPIdYqbX5UJoZ3IJmIoRlV0jr4DdNNyzZvORov9Dot4d1/iZhv07YTsL+bcIsPx9KtOoFMAzuLqlt",
+	"NtNiXFy7KYDNwmfKWK1mE+FAugKcubujOFx/iiaK7My1MCKcElpvyvJEumR/ScGoIVYIUtE1p+x6J95p",
+	"k/KLncv9Xwv9BU2h32ND+btnX7DL/f6D/h5LX5y+/sPpYC9lU2EM+rEWkj0+/YKhEwNeSkqKKOSX9Z6f",
+	"/S4ZyhdfndKrF1/9Lb6moR7SwBLaiHMJVnF643DWE6aqDTyUtpiKJMQOAGc0Q/dXqttTCkG2TQczb8QF",
+	"fMOEpBsPsX251gU4xJGXAvoTPH/27CUba8LYUsBM/O7Vq5cQZy6D74ydaFFBvHPJ5jIT2vJC2gU7n+cX",
+	"wrKFcF4CEV5VhWFPQCC4OM6uskKiOA2OYx9BsAh0Zp2e6thTG7/hYFIWM8Eq2tOvFH/qHO58ZHjfU5tG",
+	"87Bam7akadxatbVvkTPDkdxP0tLPLy2d1YEGyV9/Lu/UtZJEJ8d+vL+fJdUTsZuBQnntO9QPzAhvgHV6",
+	"LtFUthxwDUE/88KwtxTSXjgWVmaiKTbVMmA6LELvG1EZAHqVMAd22bFzS4rCcgPrV/l2O4OiU5tWeS+r",
+	"2ImKWbnXDJqA+32FLyhb7woKM1rnyAuzJEde8Wq6j5xbDwlUcHd4H/Xg3uU1PQgLipKVMM5VYBW0qrN3",
+	"D2XUKkZsVPxeUwYHvwK/F9yCe9mN3P4La0Q5RokAIoFRJ+BHGol5c3mjV6i79BxUJCX0FmXunEWhLUxs",
+	"EiA/nSeF2xpHwT+BFXnNBTR2ykTjMNSVAKMFIpDDFvOyTmFDVMeEm7hSJ6b4oZEUMJTV6FabE90EvteF",
+	"ePf2HternwnEsXY/tt5fQfykrVLoWppf5zX5CYXlk3Xhwys78zzsRqsiO8NbD89iJ2K6yW2+Rg3qGtr9",
+	"IbhgvLtjRei48kEjcpkwnmllDIyLzpsHoaBbE9WkPkF5pCc9YjdcHqEpd5E6+QNVQUVeATpTvwgEy18A",
+	"BA9c+aatkDeIiq0UOZbJCuB11Ya+dLG5t8F0X494Dj26m7DnD2lGqc/NJzHhF5+ItnlKeWO33pnA4JnC",
+	"nSm3Qhe8vENji0udUWmsXRPolJ2pfCUClE+t+Tz06UOejUZja1GhfIc+xR5+EFyopa2yCSDUio2+MT5U",
+	"JrQTS7XwQE++P7DVjVXZG2aUc0R3ijQUc13RDLXNKeoFUxcsIa5nXOYiH0XqNpfwK8WUEIDMS07tqXP1",
+	"TUOehpT1fvonxpNKstIis1xezEuuk6Gcs98wvvvnf/wv9yFlV7OHStf0eOR/O9NixrWz4UGAHcVShIES",
+	"CFNh0SLnPx6NUYfto/PcqN1rF2dgrJiBxaUsIFjEeWGAbv0SvIxJ3Tp9Fu7YQg9lGKfZPmKRlJ+gOhWr",
+	"8MpjRBwI+v0Zd+DO9Po37gH76U/sv//PzHVhF5vfDtZJLUpui8sq5cdQRmsCwvo5esxWDdxzQQEoltIw",
+	"AO1/twcz/tOfvt0eyt5fn/z2Obgss5/+9wf9vf7nR+zxXHOgMbsnT18dn7BvXh8/h+xsffa4vwdO+g7Y",
+	"C01oFK3vossPMXdojqImenKj8No7GDxcA3rVJGMfCP6q2czPJDQujXYlT+MuIb+vb4c3FS6utP3O3P0B",
+	"1uuTf9snCfSjZRFYuipvj0azcj+/LyvYKqYt06mbwaWgN38BUlZHolTRok+S1i8Bzel9jtJ66Qrj8zva",
+	"YOK05MbMhWGcaS5zYHWgGtYLsfx7+1+y88Ka7UpTAY5gkuABKMR/KI3ItLDBWouWAu8dLsvFUQhZEtrj",
+	"NsBz5JEcBsBQTriZkBMA+qaV6sKwwq5mQ15BVz8Q74F1/0wMB7Z9Q/QALlNSGZPcAoDzgkQe7pd+4D9d",
+	"4B+e4ODZZpw2S0RoHKnoeGXT18EPPRelsKIzfTkVl+qNk3CwpiMXjFiFjg72tisxyyEYO9B7l5IuioP1",
+	"hjKN9eZUp9PitpGKR9hdTypuvv7fQ8X6+vXTR63X/sHybNG0fAJZ/EWwubAU739MtJC5+ZCJrYzDel2R",
+	"zKoOnBi5O6PCYijBvTHs/ygnSWpKNYNwa4zDPOdGxCAXmI0UWnH64LNHWFPlcp36EmnlK1p1F767KmSu",
+	"rqoG9weAvwhXpValj+s2BeaA+umf9tnZI9a74hoQF0mT8tM/3ceH5P2wjeYTJcEqfzYRVxOuLfiWast6",
+	"T89esC++/GKws++G850w9gKDWdAJYG9n31SVJ2xv5z7AHezv7JuEne4cmIQd7OyROWpvcA3hoOCWtY2a",
+	"EwETycknv5pYU3eTN+QYiWF5cWavo0a2SVLGlEUwAg1lGho4ZGNeGsrJdVmokpRpXk1mqnSWEXo7OIpc",
+	"qhKdM9BzcSyufNA+IEw1F8dOhHYeBmHRIeqb1gOdReS8LJ1XJjVZmGoS+uyYAuLZHsbCV6MaStjYRwzi",
+	"B2VGgIce01LGOwJ9XRHgsie5RsQH6+cCtX+wiHismLvQk4g/xLDITCTL6V/VlRzKb04YXuT5XAtDcU61",
+	"xK8J0wJ0mlbpthyw7RIl9mbFPbIuRvluoIo/RgKytjbCaDsHDuM8vQzFWsKZH2O4KNCP2EUJbL7oP3W5",
+	"MiYdNsYdhFM/47aldXF9Q+tW3UHbv1NXbMrlonkmk4oNQofpOgFNCK3NRkR6VS/9+3Ykzv0YiHO/hsO5",
+	"/5FxOOk8rfLFEbqASYGj60eUBBwQmVek8ZON7O7Zoke6GFvPcTgYS3+gyd+bvMuRzWhc5rA49Zs3Yqto",
+	"r99RsjjiunZnpbJ9c3nxgdgvbKUWo0Ltpo0o9+paSFiu+RU5Jla8DnIphzHv4JDpyMWFrrJMSIusgXR3",
+	"G/FEQxmxQjTPIbzO14asB50KgR5DpUDENY+diFCVJdzdpy3MiFSWer3u8ntZKnv27W8/3YGf7sBPd2B0",
+	"BxZTfiF2zeXFr6+n5S0CJ5A0fLrG7h5mOia9FASBtDthRMXu+FaCtkU216A1BKp4LrgW+nhuJ1uHv//+",
+	"3fehweZ5qFJWkkOkGtccKSqH+l4ljJvtfrXfoVQLBtQTgnWO6/IHjfybo0hhuEVNVKWbk+VKn8pLoY1g",
+	"Ve4/6K/X0tXQveL6qs/bKv3m2Geuhr7weV5gYtOi7Ndzq4irtsJVgEcdSTwJbtxRVEW4N7MKhLzWinNe",
+	"XGrm29Ygh6SK+qiAg5upjEPtb7OWiikfGSbVcmagyGuFVanP2EyVRVaIeFpdgbZaXz4lrVb8OT1o+foZ",
+	"2HWECajm+OdUWF1kflhRDo1+E1eKlvX7d//vAA==",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
