@@ -73,6 +73,9 @@ func nParams(m Model) int {
 // §5.10); see planWeights for zero handling and WeightAuto for the choice
 // among schemes (Almeida et al., J. Chromatogr. B 774 (2002) 215).
 func Fit(points []Point, opt Options) (*Report, error) {
+	if IsCurveModel(opt.Model) {
+		return fitCurveReport(points, opt)
+	}
 	opt, err := resolveOptions(opt)
 	if err != nil {
 		return nil, err
