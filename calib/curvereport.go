@@ -587,7 +587,7 @@ func curveLackOfFitCheck(levels []*curveLevel, points []Point, pidx []int, r *Re
 	pv := 1 - distuv.F{D1: float64(k - p), D2: float64(n - k)}.CDF(f)
 	ck.Computed, ck.Statistic, ck.Passed = true, pv, pv >= pol.LackOfFitAlpha
 	t := newText()
-	t.s("F = ").g(f).s(" on ").i(k-p).s(" and ").i(n-k).s(" degrees of freedom, p = ").g(pv).s(".")
+	t.s("F = ").g(f).s(" on ").i(k - p).s(" and ").i(n - k).s(" degrees of freedom, p = ").g(pv).s(".")
 	ck.Detail = t.str()
 	t.free()
 	return ck

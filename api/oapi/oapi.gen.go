@@ -26,6 +26,7 @@ import (
 // Defines values for CheckName.
 const (
 	CheckBackCalculation       CheckName = "back_calculation"
+	CheckConvergence           CheckName = "convergence"
 	CheckDrift                 CheckName = "drift"
 	CheckHomoscedasticity      CheckName = "homoscedasticity"
 	CheckIntercept             CheckName = "intercept"
@@ -34,6 +35,7 @@ const (
 	CheckMinLevels             CheckName = "min_levels"
 	CheckMonotonic             CheckName = "monotonic"
 	CheckOutliers              CheckName = "outliers"
+	CheckPrecisionProfile      CheckName = "precision_profile"
 	CheckRSquared              CheckName = "r_squared"
 	CheckRelativeStandardError CheckName = "relative_standard_error"
 	CheckResidualRuns          CheckName = "residual_runs"
@@ -43,6 +45,8 @@ const (
 func (e CheckName) Valid() bool {
 	switch e {
 	case CheckBackCalculation:
+		return true
+	case CheckConvergence:
 		return true
 	case CheckDrift:
 		return true
@@ -59,6 +63,8 @@ func (e CheckName) Valid() bool {
 	case CheckMonotonic:
 		return true
 	case CheckOutliers:
+		return true
+	case CheckPrecisionProfile:
 		return true
 	case CheckRSquared:
 		return true
@@ -95,6 +101,30 @@ func (e ControlRule) Valid() bool {
 	case Rule41S:
 		return true
 	case RuleR4S:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for CurveNonlinearOutcome.
+const (
+	Converged      CurveNonlinearOutcome = "converged"
+	IterationLimit CurveNonlinearOutcome = "iteration_limit"
+	Singular       CurveNonlinearOutcome = "singular"
+	Stalled        CurveNonlinearOutcome = "stalled"
+)
+
+// Valid indicates whether the value is a known member of the CurveNonlinearOutcome enum.
+func (e CurveNonlinearOutcome) Valid() bool {
+	switch e {
+	case Converged:
+		return true
+	case IterationLimit:
+		return true
+	case Singular:
+		return true
+	case Stalled:
 		return true
 	default:
 		return false
@@ -160,17 +190,32 @@ func (e HealthStatus) Valid() bool {
 
 // Defines values for Model.
 const (
-	ModelLinear       Model = "linear"
-	ModelLinearOrigin Model = "linear_origin"
-	ModelQuadratic    Model = "quadratic"
+	ModelExpSaturation       Model = "exp_saturation"
+	ModelExpSaturationOffset Model = "exp_saturation_offset"
+	ModelFivePL              Model = "5pl"
+	ModelFourPL              Model = "4pl"
+	ModelLinear              Model = "linear"
+	ModelLinearOrigin        Model = "linear_origin"
+	ModelPower               Model = "power"
+	ModelQuadratic           Model = "quadratic"
 )
 
 // Valid indicates whether the value is a known member of the Model enum.
 func (e Model) Valid() bool {
 	switch e {
+	case ModelExpSaturation:
+		return true
+	case ModelExpSaturationOffset:
+		return true
+	case ModelFivePL:
+		return true
+	case ModelFourPL:
+		return true
 	case ModelLinear:
 		return true
 	case ModelLinearOrigin:
+		return true
+	case ModelPower:
 		return true
 	case ModelQuadratic:
 		return true
@@ -400,15 +445,16 @@ func (e VerificationKind) Valid() bool {
 
 // Defines values for Weighting.
 const (
-	WeightingAuto     Weighting = "auto"
-	WeightingInvS2    Weighting = "1/s^2"
-	WeightingInvSqrtX Weighting = "1/x^0.5"
-	WeightingInvSqrtY Weighting = "1/y^0.5"
-	WeightingInvX     Weighting = "1/x"
-	WeightingInvX2    Weighting = "1/x^2"
-	WeightingInvY     Weighting = "1/y"
-	WeightingInvY2    Weighting = "1/y^2"
-	WeightingNone     Weighting = "none"
+	WeightingAuto        Weighting = "auto"
+	WeightingInvS2       Weighting = "1/s^2"
+	WeightingInvSqrtX    Weighting = "1/x^0.5"
+	WeightingInvSqrtY    Weighting = "1/y^0.5"
+	WeightingInvX        Weighting = "1/x"
+	WeightingInvX2       Weighting = "1/x^2"
+	WeightingInvY        Weighting = "1/y"
+	WeightingInvY2       Weighting = "1/y^2"
+	WeightingNone        Weighting = "none"
+	WeightingPowerOfMean Weighting = "power_of_mean"
 )
 
 // Valid indicates whether the value is a known member of the Weighting enum.
@@ -431,6 +477,8 @@ func (e Weighting) Valid() bool {
 	case WeightingInvY2:
 		return true
 	case WeightingNone:
+		return true
+	case WeightingPowerOfMean:
 		return true
 	default:
 		return false
@@ -614,7 +662,7 @@ type Curve struct {
 	Cautions Cautions `json:"cautions"`
 	Checks   []Check  `json:"checks"`
 
-	// Coefficients In model-equation order: linear [b0, b1], linear_origin [b1], quadratic [b0, b1, b2].
+	// Coefficients In model-equation order: linear [b0, b1], linear_origin [b1], quadratic [b0, b1, b2]; non-linear models as `Model` says (names in `nonlinear.parameter_names`).
 	Coefficients []float64 `json:"coefficients"`
 
 	// Confidence Confidence level of the band and of default intervals.
@@ -655,10 +703,30 @@ type Curve struct {
 
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
+	// Non-linear models (Levenberg–Marquardt, self-started), logistic in
+	// log concentration: `4pl` y = d + (a − d)/(1 + (x/c)^b), coefficients
+	// [a, b, c, d]; `5pl` y = d + (a − d)/(1 + (x/c)^b)^g, [a, b, c, d, g];
+	// a is the response at zero, d at infinite concentration, c > 0 the
+	// inflection, b > 0 the slope factor for every curve (a < d rising,
+	// a > d falling; libraries whose b is negative for a rising curve
+	// differ in sign), g > 0 the asymmetry (g = 1 is the 4PL).
+	// `power` y = a·x^b, [a, b]; `exp_saturation` y = a·(1 − e^(−b·x)),
+	// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
+	// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
+	// `power_of_mean`.
 	Model Model `json:"model"`
 
 	// N Readings in the fit (excluded ones not counted).
 	N int `json:"n"`
+
+	// Nonlinear What a non-linear curve adds: parameter names (in coefficient order),
+	// the solver's outcome, the variance function's θ and how it was
+	// estimated, anchors, and the precision profile with the working range
+	// where the CV of the back-calculated concentration stays under
+	// `profile_limit_pct`. Absent for straight lines and quadratics.
+	// Predictions from these curves use the inverted prediction band
+	// (`method` `band_inversion`).
+	Nonlinear *CurveNonlinear `json:"nonlinear,omitempty"`
 
 	// Points Every standard reading, fitted or excluded, grouped by level in acquisition order.
 	Points []CurvePoint `json:"points"`
@@ -751,6 +819,35 @@ type CurveList struct {
 	NextCursor *string `json:"next_cursor"`
 }
 
+// CurveNonlinear What a non-linear curve adds: parameter names (in coefficient order),
+// the solver's outcome, the variance function's θ and how it was
+// estimated, anchors, and the precision profile with the working range
+// where the CV of the back-calculated concentration stays under
+// `profile_limit_pct`. Absent for straight lines and quadratics.
+// Predictions from these curves use the inverted prediction band
+// (`method` `band_inversion`).
+type CurveNonlinear struct {
+	// Anchors Level labels of anchor calibrators (label starting with anchor, any case): fitted, not judged.
+	Anchors    []string `json:"anchors"`
+	Criterion  string   `json:"criterion"`
+	Iterations int      `json:"iterations"`
+
+	// LogX The curve is drawn on a log concentration axis.
+	LogX            bool                  `json:"log_x"`
+	Outcome         CurveNonlinearOutcome `json:"outcome"`
+	ParameterNames  []string              `json:"parameter_names"`
+	Profile         []ProfilePoint        `json:"profile"`
+	ProfileLimitPct float64               `json:"profile_limit_pct"`
+	Theta           float64               `json:"theta"`
+	ThetaMethod     string                `json:"theta_method"`
+
+	// WorkingRange Working range, from the lowest to the highest accepted non-zero standard (a blank in the fit does not extend it); null when there is none.
+	WorkingRange *Range `json:"working_range,omitempty"`
+}
+
+// CurveNonlinearOutcome defines model for CurveNonlinear.Outcome.
+type CurveNonlinearOutcome string
+
 // CurvePoint One standard reading with its diagnostics; a diagnostic is null when it does not exist (no fit, or no root for back-calculation, or nominal 0 for relative error).
 type CurvePoint struct {
 	// BackCalculated Concentration read back from the curve.
@@ -792,6 +889,17 @@ type CurveSummary struct {
 
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
+	// Non-linear models (Levenberg–Marquardt, self-started), logistic in
+	// log concentration: `4pl` y = d + (a − d)/(1 + (x/c)^b), coefficients
+	// [a, b, c, d]; `5pl` y = d + (a − d)/(1 + (x/c)^b)^g, [a, b, c, d, g];
+	// a is the response at zero, d at infinite concentration, c > 0 the
+	// inflection, b > 0 the slope factor for every curve (a < d rising,
+	// a > d falling; libraries whose b is negative for a rising curve
+	// differ in sign), g > 0 the asymmetry (g = 1 is the 4PL).
+	// `power` y = a·x^b, [a, b]; `exp_saturation` y = a·(1 − e^(−b·x)),
+	// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
+	// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
+	// `power_of_mean`.
 	Model    Model    `json:"model"`
 	RSquared *float64 `json:"r_squared"`
 	RunID    UUID     `json:"run_id"`
@@ -814,6 +922,11 @@ type CurveSummary struct {
 	// back-calculated standards among those in which no level holds more
 	// than half of the total weight. Every curve reports all candidates in
 	// `weight_candidates`, also when the method fixed its weighting.
+	// `power_of_mean` (non-linear models only): Var(y) = σ²·|ŷ|^(2θ), θ the
+	// slope of ln(level SD) on ln|ŷ| over the calibrators with
+	// replicates, iterated with a weighted refit (the curve reports θ and
+	// how it was estimated in `nonlinear`). For non-linear models `1/s^2`
+	// weights each calibrator by its own level's SD.
 	Weighting Weighting `json:"weighting"`
 }
 
@@ -889,8 +1002,11 @@ type InstrumentPredictionRequest struct {
 type Interval struct {
 	Bounded bool     `json:"bounded"`
 	High    *float64 `json:"high"`
-	Level   float64  `json:"level"`
-	Low     *float64 `json:"low"`
+
+	// HighOpen The interval is bounded below by `low` and open above (+∞), as when the inverted prediction band of a non-linear curve does not close under its asymptote; `bounded` is false and `high` null.
+	HighOpen *bool    `json:"high_open,omitempty"`
+	Level    float64  `json:"level"`
+	Low      *float64 `json:"low"`
 }
 
 // LateSampleInput defines model for LateSampleInput.
@@ -967,6 +1083,17 @@ type Method struct {
 
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
+	// Non-linear models (Levenberg–Marquardt, self-started), logistic in
+	// log concentration: `4pl` y = d + (a − d)/(1 + (x/c)^b), coefficients
+	// [a, b, c, d]; `5pl` y = d + (a − d)/(1 + (x/c)^b)^g, [a, b, c, d, g];
+	// a is the response at zero, d at infinite concentration, c > 0 the
+	// inflection, b > 0 the slope factor for every curve (a < d rising,
+	// a > d falling; libraries whose b is negative for a rising curve
+	// differ in sign), g > 0 the asymmetry (g = 1 is the 4PL).
+	// `power` y = a·x^b, [a, b]; `exp_saturation` y = a·(1 − e^(−b·x)),
+	// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
+	// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
+	// `power_of_mean`.
 	Model                Model  `json:"model"`
 	Name                 string `json:"name"`
 	PendingCurvesInForce bool   `json:"pending_curves_in_force"`
@@ -983,6 +1110,11 @@ type Method struct {
 	// back-calculated standards among those in which no level holds more
 	// than half of the total weight. Every curve reports all candidates in
 	// `weight_candidates`, also when the method fixed its weighting.
+	// `power_of_mean` (non-linear models only): Var(y) = σ²·|ŷ|^(2θ), θ the
+	// slope of ln(level SD) on ln|ŷ| over the calibrators with
+	// replicates, iterated with a weighted refit (the curve reports θ and
+	// how it was estimated in `nonlinear`). For non-linear models `1/s^2`
+	// weights each calibrator by its own level's SD.
 	Weighting Weighting `json:"weighting"`
 
 	// WeightingOptions A method's weighting options, every default filled.
@@ -1011,6 +1143,17 @@ type MethodRequest struct {
 
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
+	// Non-linear models (Levenberg–Marquardt, self-started), logistic in
+	// log concentration: `4pl` y = d + (a − d)/(1 + (x/c)^b), coefficients
+	// [a, b, c, d]; `5pl` y = d + (a − d)/(1 + (x/c)^b)^g, [a, b, c, d, g];
+	// a is the response at zero, d at infinite concentration, c > 0 the
+	// inflection, b > 0 the slope factor for every curve (a < d rising,
+	// a > d falling; libraries whose b is negative for a rising curve
+	// differ in sign), g > 0 the asymmetry (g = 1 is the 4PL).
+	// `power` y = a·x^b, [a, b]; `exp_saturation` y = a·(1 − e^(−b·x)),
+	// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
+	// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
+	// `power_of_mean`.
 	Model Model `json:"model"`
 
 	// Name A name of an instrument, analyte, method, level or sample.
@@ -1030,6 +1173,11 @@ type MethodRequest struct {
 	// back-calculated standards among those in which no level holds more
 	// than half of the total weight. Every curve reports all candidates in
 	// `weight_candidates`, also when the method fixed its weighting.
+	// `power_of_mean` (non-linear models only): Var(y) = σ²·|ŷ|^(2θ), θ the
+	// slope of ln(level SD) on ln|ŷ| over the calibrators with
+	// replicates, iterated with a weighted refit (the curve reports θ and
+	// how it was estimated in `nonlinear`). For non-linear models `1/s^2`
+	// weights each calibrator by its own level's SD.
 	Weighting Weighting `json:"weighting"`
 
 	// WeightingOptions A method's weighting options; a field left out takes its default.
@@ -1038,6 +1186,17 @@ type MethodRequest struct {
 
 // Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 // y = b0 + b1·x + b2·x² (ISO 8466-2).
+// Non-linear models (Levenberg–Marquardt, self-started), logistic in
+// log concentration: `4pl` y = d + (a − d)/(1 + (x/c)^b), coefficients
+// [a, b, c, d]; `5pl` y = d + (a − d)/(1 + (x/c)^b)^g, [a, b, c, d, g];
+// a is the response at zero, d at infinite concentration, c > 0 the
+// inflection, b > 0 the slope factor for every curve (a < d rising,
+// a > d falling; libraries whose b is negative for a rising curve
+// differ in sign), g > 0 the asymmetry (g = 1 is the 4PL).
+// `power` y = a·x^b, [a, b]; `exp_saturation` y = a·(1 − e^(−b·x)),
+// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
+// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
+// `power_of_mean`.
 type Model string
 
 // Operator Who ran the instrument; an identifier that may also hold `@`.
@@ -1146,6 +1305,13 @@ type ProblemField struct {
 	// Pointer The offending field: a JSON Pointer into the body, `/lines/<n>/<column>`
 	// for CSV, or `<in>:<name>` for a parameter.
 	Pointer string `json:"pointer"`
+}
+
+// ProfilePoint defines model for ProfilePoint.
+type ProfilePoint struct {
+	// CvPct CV (%) of the concentration read back from the mean of the typical number of readings at x; null where the curve is flat.
+	CvPct *float64 `json:"cv_pct"`
+	X     float64  `json:"x"`
 }
 
 // Range Working range, from the lowest to the highest accepted non-zero standard (a blank in the fit does not extend it); null when there is none.
@@ -1708,6 +1874,11 @@ type WeightCandidate struct {
 	// back-calculated standards among those in which no level holds more
 	// than half of the total weight. Every curve reports all candidates in
 	// `weight_candidates`, also when the method fixed its weighting.
+	// `power_of_mean` (non-linear models only): Var(y) = σ²·|ŷ|^(2θ), θ the
+	// slope of ln(level SD) on ln|ŷ| over the calibrators with
+	// replicates, iterated with a weighted refit (the curve reports θ and
+	// how it was estimated in `nonlinear`). For non-linear models `1/s^2`
+	// weights each calibrator by its own level's SD.
 	Weighting Weighting `json:"weighting"`
 }
 
@@ -1722,6 +1893,11 @@ type WeightCandidate struct {
 // back-calculated standards among those in which no level holds more
 // than half of the total weight. Every curve reports all candidates in
 // `weight_candidates`, also when the method fixed its weighting.
+// `power_of_mean` (non-linear models only): Var(y) = σ²·|ŷ|^(2θ), θ the
+// slope of ln(level SD) on ln|ŷ| over the calibrators with
+// replicates, iterated with a weighted refit (the curve reports θ and
+// how it was estimated in `nonlinear`). For non-linear models `1/s^2`
+// weights each calibrator by its own level's SD.
 type Weighting string
 
 // WeightingOptions A method's weighting options, every default filled.
@@ -7883,370 +8059,386 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L1fcxtJli/2VdKcOyGgpwiBENXdAmMirpqSdrgjtTSkunuvBz2oRFUCyGUhE6rMIojpluM69uXuq18c",
-	"4dd77ffdCMeEw2/t97ufwfNJHHlOZlZWoQAWKFLds9ZETIsAqvJ/nr+/c84PB4lcLKVgQquD4Q8Hc0ZT",
-	"lsOf50zn66dTzXLzKWUqyflScykOhgcXLJEiVURLsqJckwmbypyR3LzCxax3EB3k7F3Bc5YeDHVesOhA",
-	"JXO2oKapBRd8USwOhv3oQK+X7GB4wIVmM5YfvH//PjpY0pwumLbDOC3yK3b2bHMMb+eMJObHB4rw1HTJ",
-	"zddLqucH0YGgC2g43TmU/5Cz6cHw4FcPy1V4iL+qh998c/bswIznLGWLpdRMJOvfs/XmQJ6SJONM6MNk",
-	"LhUT5JKtSYcS8z7hilAykzIlyVzyhHWJnlNNFvSSmV/MgnGWjoQZIlOaKDplJ0QxRvScEblkOTW9PFAk",
-	"6LM3Em62uF/lfIOxHprBVtadXr9kYqbnB8OjwZeR2Qf/2ay61iw3bf7pj08P/0d6+Of+4ZPeeHj4/Q9H",
-	"0dHgy/f/4cBvl9I5FzNcHKF0XiyY0M07xP3vhKdMaD7lLI8IVWQplWYpWXE9J1wrkhdCbdvFspPb7uaZ",
-	"7xyGfV6IbWcqL8T9nqj35n21lEIxOOFf0fQct998SqTQdjXpcpnxBA7Aw2UuJxlb/OYflRnoDy17fINv",
-	"YafVqb6i2VTmC5YStRaaXkdklUsxI2aLicwJJVc0KxiRhVY8xfOIzQ7Jwr07En9/8frriFCCR4Ks5ixn",
-	"hBJRLCYsJxOWSTFTEaGCFOJSyJUgU86y1LxiTxyR+UjkVMwYueIyo5rBr+8Klq+JpwV4b1LJFBFSE7M0",
-	"a3MP3kcHp1JMM5581NWDg8KULPLE0B+lqWZkKvMJN1QRfsQL3aFIpEjOrjhbsZTQLGc0XUeEjgT+ZK6A",
-	"LDShZMp1BGQBX4a7AQtPF8zcH3e3gcYozbOMcDEy05/NddeuxwsYRsrEx14QLS+ZIBlNLhVhV2b7VCKX",
-	"jGQcbjoXJL4+dFfnEH5Tce8AqIg5CTR7nucy/5jDdh0TZnruETONiUzXRNG1IlJkazIC7lQ+NDogVKSV",
-	"TTbE4n108LXUL2Qh0o+97oYypf44lpeEXXOlYWRv6DqTNH0r5Uuaz9jHHiCsKLtOGLO3Q7H8iuUPFEmk",
-	"mPJZkbOUZHzBcbQXLL/iCftG0CvKMzrJPvqAU6rphCpGEirMSk7MXtNkzlIi5Cryc+AJMyxezQutDflL",
-	"5UpEQNA6U6Chq5xrYPpcASukIrGzV6bF1J6xCUtooRjwQd83VyNhCCsV6WSNPL8unh16+axpsvbph4Ek",
-	"B/N9K+UrKtaW6aifhUw8UP725IZ2ckXkFcthBexJuKvpfiNooecy539mH/VqvuJKcTGLSnYZeSYoc8MQ",
-	"5CVLyYTR3PA3syq1SX/33XeHTws9N6JLQjXbFFjir+DtGFkFFSQGGhUTqnXOJ4VmpHP+4pR8/sXjfne3",
-	"WF6X7XDplrlMmFLmEj4Xmuv1x1zB71iWHVophYtloVEKmOSMXoL4XGSMyGl4HU/sCqgYyKIi5tqOhJxO",
-	"mUjNFQXxo6TgRcYs2/xGqGK5lLlm6SuWcvoW1uNjixRwJR4ocoq9HppRmMthqJAUNbWA0CRhS616INPa",
-	"PswQnsL3hticmWWDsacpN+/Q7E1uGtDcSJ9TmilWH0n5NtHznKm5zFJ1AisJY8jYVBu5kGhQY8yQmJhx",
-	"wUBNmdIi06Sj5ijsZRmyfingwQXTc5nCUVwG4/jhYEKTy3FCs2ScydVYy4zlZgTjJQp27DrJCsWv2Cun",
-	"PeL5NaeD6oPhQSoLwygio+bgA0f9ftSkbKJsara87HPBxXhJlRpPc5rgMvyws+3WLX+cmczlQqqEpVRp",
-	"nnC9HtNsOb/xND6Fh95HKOGYTd/zPSPrjeV0POX7vrmgIqVa5g369OmcGQlyZbRpMqU8K3L8F4/aFctT",
-	"nugTvAp6znJFqFE60iuuZL4GvU2zhbppLNDP10arg/Fcn+FLR+X60jynRocuBH9XMPu72S07AZbtPevr",
-	"ca7u9yiYo5yxK5Ypq/Tjo4/D9wablhd8MR+rdwXNkVF+wPmXhc44y8eJlJdqnN7bZF0/Sheg4FsWfy99",
-	"5YVQe+73Fcv51HKMTUpQPfY//vrZj0brDl5B4Y/mKemcnX778PT02y5Z0DUxtJXQGTUSpZGYRkLIBTca",
-	"CujsPfLMUuFBPyLUSELkmwvy/M1TcvHd4ZfHn5NXQIXJl/1+/9lIJDTjE8tRwu7ximV0InO4qg+UJd9E",
-	"Ma1AVJMra426hxV/77+Rk39kiTYLWrKmNzLjyXpPzvYctFLP1Axfmso8YZHjW6rkWHuzqM2pfjjD2Yex",
-	"tHh7O5to8XIDk2jxViOLaPFehUHsT88rFLyBXLcaQYVYt3mjQnpvRWHbUNI93qrRxRZvVqlcixf2oXFG",
-	"xkU6l2VyxVJz+5opniKdNCBi28kXiJI3DvN9qPn8Mdyo2tFoOrBb78326xjtJBa7CUH9nFRP4uY9rOxZ",
-	"89ZvHqPwgu3cw++bqLA7HnVHiOIzAQ0Z3QEWuHl3PA/o9x6HPKDX7/ePGs7YU0GzNeq/O6l9lV6jxb69",
-	"XwAEPX2jFd88Uz9Q0JV9v3HFipTr51dOj2w/h5I51FRjowivqCKpFCwirDfrkTgvRC/JGdUsjSMSg3W5",
-	"N+W68pkul7m8Cr/JmRkmS+PeposnMiOQDS5AQ2id7o2GX9DNqWmouZ0aFaWaHWq+YE3PpkxTnjXTjyXN",
-	"NU+KjOYqIlwkWQF6PXUW9hxMS1RJ0Wv0WIXbRs19wglGB/762d637uNLOdtzF9mVc7C24mTBadlgZbUZ",
-	"2JabxnpKCzM8teXwoAFbGQrLFRhE0MwwtFYFuMNOyAzstJYsj0SSc81yTsk0lwuyLCYZV3OWklnBU/Ny",
-	"g/hIkyRnKddAaKKRyNmsyMyP0L8VLi9evwHLAlnmLGEpg6Zwc8lkDa4hmpkrm5Ily5UUI+H9zxmjiln/",
-	"qFvpjdO14MLpepuCAkgRe26v2cJCI4utrvQL8zhZzRlaPxLTOElkkaXE2pXdu7BagsSGF7A0NpsBfcHK",
-	"xHgkY3RLrObr4GhPpMwYFdVrszFnsKk2X6hAHIajYEZkGA/YFE+IKLKsPoM5NUdFgKNwRdE65SbSTPFN",
-	"K2jJR71gt7xXP67MqPmB/cg60MGsjiNKWeK8lN5AAMaBFQe7OpzxwEKwuXhtuEVFxMSdClY7aAxdMY1T",
-	"yZm3POKt06XVLJELBtepkYIqc2+MBLJlHwFA4J4xW7NgVMGdBbUw3MoP3rBm/leO0J04v0xReUuqsodd",
-	"qp1kt1z3JvQFHADLigLatQQNcUjiUtozPA/FvTgaiTgQ9cwvdSnPfOcFNUOnuBTmOy+aQSM5M79csbET",
-	"Xcdogo9I7CU1eIspnhY0GxtpzXxhRTIFrSykkFoKnphf0pxPddwjwbek49fMEEF7YLrEbgKYxpw/WUtD",
-	"WMy5SXS2Jr4R9LCYVVrJ/NIwTXC791yH4HFyu0SoJlzMmNJDeEWwlYfbqEwuS96A15IKOM0Xz7xBHnzW",
-	"JfzD/EpRjnugyKBPFlJpYki80CPhpBLsQ0Wl7/s7pvSM5ilBMQUujiIdxdhIxH/3/C15eHX0UOdMpCru",
-	"9shZ5aqTQmRMqZB0ZFyB8YJQNRJ+USN7F83L3r4NV2VqZAoj3Ahy1Ce1cY4EOFkj1w82UG5VB4g6fpsz",
-	"9C6QGsHsWguKMCJwo25S1Uoa9JFQo7AH1agFgQqx5ZSG6gQ8FZzRUmuAkbhTZG6qOS7BRbUkKjq4PjSz",
-	"OLyiOThfzHTg6r7i4qWbEn7h5gWfXtLk8vX0BUwNvvjd5vzg+69ocnlamSN8fX7h54mf7WQv7Fyf26nC",
-	"j2fBfO3TOOlznDN897qcOI43mD188QyXAOEn5gij/ayJPjnbXBI+aERXJFj+Shjl4QZ16agf/O8Gc+Wp",
-	"EdlAempgFyt5qHhqjrF/CvU1c3vhRFzRTEWk33tsyEm/9+TJkxtVuSdPnlSUucfNo9K5zF4a5qD2tN5d",
-	"zNlqTnOQRk0j6ChWpHN28Zp88eUX/cNB1zE5D6mZUMUyLlivgac1qVrjOZ/NW5o+7BuZXLV8AfaftXx4",
-	"RXPBxWyfAblX2o6oxsXt8Krt1AZSmXVUWbRGzo1bdV5kjby7JO5GHOr4j0wTmvUicppx0SOnc7bokcEX",
-	"pHP05MujLjl+8qg7JPHR4UDFI5BDEas2YWspUvLTvwwMH+rYcXdPzKOPVAzOS//MI3Lx7ITEA9MI0Stp",
-	"WJ9QLCkM5XCPeUYGLcJ5OyHx+eExvkOCVyLT/EjQibxi5DfwvPMygyAKYLgV+et/+V8G2PPx4ZGKyVQW",
-	"OdnseSR810dh10f965hoJiqvWN8qPA1gPcuCDVeuMhezZAfRgVmOg+hggJ/MdA6iAzMe81v/uiVpN5t6",
-	"hC2Yvx65vwb+u/Nj99fxkX/OtG9ORpGrJsPC6yV9VzByydaKacNmlcxJx1zjz4+LvLzaS0M5xAzsfwG0",
-	"9fHRoBW0dXz4/W/+Q5OUDYDjfT3mBK0sKBX0yHdOXcoZNYNUVZ3PPkzNIc+M9JdINp3yhBtlwwiAVSat",
-	"YlQCE3lFc25k2xg8nmyx1OsIJT+80QqNMIKZ1k038JwhexGJrV4EqmU8NepkZNsFhysolyNhlEs4MnXi",
-	"iGRiTHWjVmOnWwjQB93TVZaxy+JDSwvfxm9JYMjYqZ2558w7MKf9fAdNfoNwZzYnfibIQqYsO2TvCrRf",
-	"yzxl+ZAYjkNz8sdJPyKTo+8j+8VY5nzGBfkjfPeuoKmRBhL3XEQmg+8r/ut2bgprzXjUNPztQsBpA+s3",
-	"mzhBST01n51i6kWCVtZ20687qk39ut/IguqcX7uOw7WOiPrpXzv/8P/+n//5u3/o/vV//r9/+r8iksuV",
-	"MmJT8Byud2XJ7mztdi8smll3XwcL76XK33iREqXlXjcjnW724ERWkrJZzpgyKzjNGUvlIiLC8BiyDEwI",
-	"gQsKgTrjK5arRnEVoioCfzA+j2TFq4ZmbgBVRrMzPP/wqNfv9ZtNyNY5jP3tuobP/YPvo4NpRmeqyaSW",
-	"aEXoBABIOBALDkcTkJDOAtQaCfKC6xcZnTXd/zmjV5wpjSrZTQ2BknMxpzkYiHjaLiIgCgMcGo133qdY",
-	"XYpnXGkuEo33VzmVYop6xK44G2ueuXFlrJxubgNoz832VPhpnLMrvv1QWe3bPdR8Pwxvrwz9qBGoYkju",
-	"TSN/BQ+9jw5E0/WxXLlcMNKBQ2pUIimYU9ALAfr5jYu5lLyRPyDewKM4rDQQuenKnLheIzLLZbFkKZms",
-	"LTnmAvmo4iVnaQ9uMkv7xgyr6VRXnNB1zCWfzUGUCams4QSa5UaRhcF0CtRlrQu3wt26t7QAgzHqpnmd",
-	"w0PvA1OFSnfQR7/0Kbvi1sPcWT+87kZOaP7v/3VFfksEWcG8iUpoxm47AfBR3DgDfMo+b+7CWAKJp1n2",
-	"enow/GMbkvF9XQJ9kzMFOyUIFcQTXH/fouDCcfQc5sweQzQ4o+9/3J5o1YTUhihBt/j4wBY2D37EjbP9",
-	"ocxbaaqLdrfkAh8N3L/VaXxz+s0rkshSrSpNNhWTjjfgbBBIJ++MW1Gub+3TnoJZdnbje/ax99EBHuZx",
-	"QkXKjXCxlTT5Jx4oohKZM2t4jWmhJaodiCwnU35tCDQ0DP7WjF8y0gEdxJw6tIeaJQrEgS0vd1uTMaRG",
-	"p26UTbTMzVWKKyaabXC/kyvbOUJF4ZKnVnwR5qRlXBm5RhJVLMw/woW0xgGdaRZu/Kza3+Hv/CubF/mt",
-	"i7NjpDBj6oABQTBio0vBJm23B28xQMaBTYWjGYMJHCn8nY7K9p3MpVRMAfnXc6ZKXTciNFOydBlazo9n",
-	"gAowhpwQOgF6Zb1R5UG0mvKE4XlMa7Py073zeQVDpeoSGRt0/meWy/GcijSzm7x5uMwjVWKgMMTDhnmS",
-	"FcsZuWRLbZ3luUyLxFwjLqZccM3c+TxBrd6ti2CE5lKxm6EMGJeKBNxLa5uyWVQNpnVqt6V9TrYKT3Xz",
-	"6jfRGCeyN93J+jLWNOtNblLRIavsHnSiqnvDdOCdJoHS60UzbxHwkq8TOEr66rlGVDF3VJS9wBqxoUw1",
-	"2j8hfF28kNYdvA/0Z4u/fiHRnwaHFPSg9srkhCreCAhZW2c6CggqQMZyQVYyT1Uj8buVacYZ2G7mzMVi",
-	"QfM1qpBLnjO1Xd/mRguiV0iREmbE6PJGP1DE+ikInbGaj0AKtnUBt8h8gWpGlR6H8Ln2dOnb8K1m0pRR",
-	"cOpXEJJUG9Li2BPVcdWv3+Tp2LDzww640xAhDCpY4aZpBXu99Zy/5GpffNutD9Aetr3aUaoLEIJd63Gy",
-	"xRqNVmon+ZlHybI8QlaHMKsFX/duPjJNW2H2IBxFm7VG3W4/M/VrwTaU0TIBQ8rpTEileaJOCA0+AjDM",
-	"HzGuaxHGpCMkmoNkblh5LqUGsWBCk8vDwCVtH0BvaB8ecW5pVBF2hYUVkBmg0YoZiOBmUtAv8lmv89xS",
-	"o0vqvt1Wpk9A2HIM9m1+6caOnVmgGV2Eetstm/aGrEYzU05ntx2zhxjAXjYDwI/6/Z/+0qltKtgrK0vd",
-	"fVj5eGt9HGWGW88HpbeW+x7grcdhz80JB7I1cS8oDN6HF245U5S3thlz6qYOUH9OSB/vsztqdwEDw7NV",
-	"vzfBUvqh+kMcbNOWNQwO5sbtijYIROM5DC7UVoJ64S0GdVsSIE8hxUePPC2BUOBHW2JY8RhtP/GJxyED",
-	"gNNQul7gfq0+bTivhRPBsBGF3RZXU475DbZ67hoNfnpath98e+678pO37HFfcHrFKXgHnr6KV6Vde1PK",
-	"M5aOS4ffJk69ND1haCm6Czj6Y5dUqRBdJ3OPHqvaKTZ6rgsSd2bv38/WfpfG8huik26mmftaEG9vpNu0",
-	"st3STGa1+pYmhI+ndof6bYOKWj33O1TWJor3jGdFs63M/UKmEBcBmZa4UTQhjJQLq+ySjocz/taSQ8Tg",
-	"/D//K0ltE90TcoQ8Bo09vVvHibaAuz0PfYx7yMQ3Gc57DVAIGxDzQSEuu11GTjhHDIl1mVkepipUaQ9y",
-	"vV3yyxkmtmBNcYtbeHz5TtMB2/A4UTFjY4zLgdismxTr8tGGnyp+k1ZJ/MIZhO8HBiLbY22sQXxQ81Xy",
-	"B6+dRrZlS9rHqFX2alO/cyfHcjzoICJHhxOqMBHHhk/xxCbranqzfn0rl3K3n7bx2OxcwCAL3h5LWF6k",
-	"VtaA2nZV/EiP7Zy2RwfVj3E7S89bdq0bLDxodWOIwreB/TkXl4RqMpF6TphI1YmD+KelRT2TK6YQUT/n",
-	"s7n52yIAaM7sq16qr9yluxmvc58DCK3sqLbj9YvVtPcOedEADTX8x8I8aB3koUKUB4lTsCkIC9IYIxON",
-	"hwgNxXMMOWzIQkL0DRVkTrNpGb6oaeYcwDawoIr7iLsnJJ6y1dhfPjWeynysBvGQxEcP1Z8G6I0Blw06",
-	"vUYCe4Zhz6mygQR+8WAYFRMlBKqUPcRV6GbjJI0c0DSslkqEXf5ntmmAr3znGrY/vmCrc9/8C5lfDEBt",
-	"+B2jmZ7veVdLgc/NSl7iAUnXLYeM/b7+/YEbwjm+XD99tqumQxfQ0ya4vg1spSKIXomc0zey2xU5zFxO",
-	"FF0sETMQwFA/P26FQv2+nmu1H33+6H0jLrXMtPomZ+bg35piBhpYe7ZzgzcCs/VYvdj6DowKbC7ECRFy",
-	"Veck7aSkKn5xp5ZQPmk0C9iT9lyhXNILeLOeEugGxlAPK/bivRtH4zG0mMo9BdYAtulQmSWyIjSaIQo5",
-	"nshCpGFEaUTiTK4sptjwj9ijhBvsr/h2sx1ye2RCeytkmxQi26IZ9jROQcCCDWJwUqybX9MGvaSa4XFo",
-	"l0XtNohpPCDAO1y0JsZNmxsB0XH8yrH+fS/Pre55GmiGu97yGmQrw0ddhA3SH+/GSrkHG/Xu8p6VLTZu",
-	"ZAnL3O+uvZ2H8oNTyDKazyDW1rTYJERsXqPbOBKUG3B1TP/9v64qIjqmO0CZAgI87QM0yxzO0P1+m1Qp",
-	"dVMujqpxlW8T0/WMaZagX1Ok5F1B4ZhYVyd66iPEfNeRVgoyyi41iZOca57QbAwWiJh0qEdedHcFPde2",
-	"yLWS7A7oO7t4TY6Ovjx+dDgg7h2XK9t5CXU92O96nNzWBVWZ3G2G49YiIutbj2JbQo7fyZXpY40AF7e4",
-	"4OhbzddmxXtb8nswG0XWnJcgnJVVMgm+ZIaJ8zOrettsA5lscCWenf6O/GFA/ODw/EXkUe/RT3/5t396",
-	"eHHrzt5t7azpxEfkqP9BHSo+W9Bmcc2fjH/7J7hX7nDglarCsmJoZwwoASM+tIz9CN5qr3JemJe+gnea",
-	"oRD/9k8WDyeYIXKIQuvWcWRBkAJEsGzDJXZWc57MsUV7RxAwfPGs22uQHAy3Mdu4cR+jbXRj85DvzHDw",
-	"ypv89xIxXLKDGzPK1PPmleLBHmlpLLt9f1OcURsv+c3xMxAyb02fRj6yr+yhPNg+JuvW6YvsK9Xet5Cw",
-	"oLkNI24Nw2eGP+NXrLmpBb0ewzEd0xkbz2XRBKb+2rMxe6JTaSEYS57fFt+wZySFTcCxacu2bk0c2ZiL",
-	"8dTh3TaVhvauq9u4Z0K0oly2ghb5t1/b57ckNwmcOeHW3ISZdKOo4RL97YvCa7x9LZuPSR2bWJ747UTm",
-	"FigttHm0pxSWmt2UvMo1u32stzRw3IIuoor3gWSxYjK4wZRcJZntuGRo5Ph+U5TGWM1+78njXgOJutni",
-	"25IUGaEvk2JmfYKhQ8FVO1GarksQ6QkREkWbO3AHfvnFl8c35kC+FV1rr8DuIHjNqasowAyMAmlT9ECu",
-	"vBWFwkeIF1nQNZmwMEzHmdF8Jkw47N3m9FU/E7G016aZYjYRRn+9Gi+927dalQOML4vJmvyWTPrkN2Ry",
-	"9NNfrk9IXAk8s7/bn3x0dTwS1ffMv4Of/nL9079i6pAvjz///HBQS8ODLQNcPOjiIDrw7bY0WMOcXrrW",
-	"gk+vXYvw3R/KZt9HB68hxX8TIPW7uSS59RyU9ukTMFf7M+qqjK0xFAOSu8X/Ma7ZqNtWAasaqf8jWKmP",
-	"Bl80m6k/1Dj9t2nx3WXnDVekRBTezl5/NwD8XZmB0IxcTQxg1KS2gf/APNpDgPD5WwGB8NX9UT+Y9PI2",
-	"J+Uc3mzSf7aAkprA3uOa6dIigCoLUZ9cTXZ0M7gBJ74x8L1v4i47WBV4jaKAIUppFUC0kUASeBsmkCyh",
-	"4lbfcoYq881KuvDsSrY60onpYsJnhSzU2Lwf3zbeOLR0tzjZW9IRxJDWZwxjiyMSQ/6f8iO71jldYlk7",
-	"yCcIT2cScwe6T+/MT4LNALcKf0uYm5Esypar0x6Jjs1AFEadNS6ZUT0rpsAhqKUjEWSl60YkLoR1h4yd",
-	"ZynujcQFJKxwngp79krmktA8X8OIYWvBrzQSsZB67IxbZhti8KyTGKktHsi4e1Oq1maI5cZjPHCl7ZTi",
-	"3HPBO+MSbdlo2yy9bEaLlxNNufDBo/GUsyxjeXNo6IJRMd4TRu5s9U0WAKipKKfEu/uDCEOKEOn05vQJ",
-	"tQyAmy7w5TKX13xh2leVEO5GP6OrMOGuUxBdZa44Uxqaugt4OU8bsOXNCQ2vADju4hH9otb3JKACmydi",
-	"N021YsN+NPVvybu226fmKllt4uVfnJInx4+/ILZCFkGrp9r0uGxzKmBuc7DqQklSmwqU+2DnCHjGkkmL",
-	"u9hMOLMlI8ELCRBWmnFbUCyyVa0ayoPZLMstRQSY6gvzciPZEmU00NaqX2RJMftJA+ARHrBi1a6yYfE/",
-	"HFqx+/DM8BstybtCapuCGmk9Zkt/3O9vTTLcFAZh+vnd27dvCD4ACREqiMDHleyPx/3GRCma66ZEgBdz",
-	"mWuiMAjBURl3fkwrjUPVtkJbHcHzzfmZ04XWzmcbNuZod5GLIfCsS8aWLB/aZ4b2hMSWlAbq0W7xDn51",
-	"cwyQ2jvM/pWDM/yh5QV56/JHc1cMr7cVYtwEcjLv1478kFDy9xevvyZv8CXD9SSmA5PpOiLxQ6MHq4ej",
-	"ot9/lAj4h9lPicyKhf0qHglzN08vvgUpLsYnuP11aF+nC2YfJ1gn09f5RYFg9zq7ee1c2XOXTWYPZ/R3",
-	"odQUlSGEFm9pF8RBLtHKCCVBxSFkACjLNVEyyai4DBMMBUGTmkGu4W5NNs5tpT8M4a0ehQ+B2tw5fKZx",
-	"vYHFMrUvKH0h06a6loZjH0L11BgPEnwhRbaOyWrOM5Rng1qpxJdKhZLIOUskoJo70IgiVKgVy8nj/iOb",
-	"4SSoKBrXbD9l51Z2gI73sPeYxfjOvu8+v4YmSgC32kbLaeoEPEU6c6ndvFSXZHR2aMuzaFs/1sjhM0m0",
-	"dDAJqNNAb5EyyqI8y42sWEQ+P96VZCdcubYL5TvajeBEM+KWMwf1Hi50c23UZS7RY0Oz8NCgBloxvp6Y",
-	"82XaQk1FArhOYwVel/DbyASIOi7d9RiD44LxSzzXCYnNIZuzLI1Hoqb7ghyDAXiRbSEihZhyjeAGmRNV",
-	"LFmuWGqhFHQkWnXbc9NwEHVfMIIn8+oRD9YGQybt5A+iAzfy1tsIPb6pNGi/PA/btd9955uHHayduf2I",
-	"BxfjQu0wu+MVgeth9lPIVbPxPKOzsWKJFOkWd8eU5jaL+4TNuU3ru8y5kVciQn2AIWQCgJCsKjLB1v3d",
-	"kkJ7Z9VBj93fBONzTWZMoyUFZtopBNSpNiseGWpRpvwHzT7C4vmOokS2on93i9QJe7PZ9RtpvT1ckMND",
-	"R4MPgVAWeWYZ51FFOrR46LbRIq7vyG1x8/UvNevNQJig9ICLbOlYH4uztFjNFVl1IvMc8RrdfbKwV+Ng",
-	"Djd/29jR81A/q8cal4q9S6b0QWkA/RLtZ92GQRbZ7SpW7bBW7xMgBxXRmyQDX+QKMiWj4b1H00pBKwjG",
-	"9p9D4hmDNIHf+2i/ZvNNC9DmzfC9Pe3hl1ykIUO1Hn2rTrBxMjeyaXva7Hfx1DcUfAmc89Q1aVQGs3Sy",
-	"UGCI3sMxXeHEW9Jsmd8sz7KC7xS2whYsa0hbc0MUIHI6P9L243MWdLsvflu50J8fN6bN3TOuGQ7leIux",
-	"UrF3u2kqaAyMpSeEC7M6kEDMyKwYpwclvyokavu42/klzIhsFiA4f+7y1Rd543yEQZN+RcP5B7HRO50f",
-	"lZu2hdYXmX7BWPoREgztWa4tpJVNKYSpGi9kvgUOtTP70BuqlJEuYsUh67tNtlfJQwRwSBe8sXuf7bzq",
-	"yYb8AG/wJ537/KZ7QugtwiFlic1FuvRB1wmrS8ZQxC/dEXa9HcgXVAAETN8d1CFMeJu81bgyz9zTO8S2",
-	"ryupuqrAwP0yR/mxBZfwhlDl2jADNmO1HJ+GpDV/MQ0+9S/j53PbxPvyi9sgAe5i8T803jWIvtXSFX/y",
-	"KCcMerNO2rKsQm/7XjXuSpGxb7nMyvRxe1A3S1S3GBMsVJSLK5ldGWXScBfemHC3DV/biIbGjd5S9dAR",
-	"q6PDgSK2FktEzNH2P4UlvZo1s9wWjrkBCOJrzFRq7+2+QNC0n0RQiK5c1ObtEntXB8kLYch4mfr/DvLo",
-	"3Ar50aZqgSvisW+hglvArZdSaZaSLWmT98zzd14IrN3ScFLdDLbAXbRhRuadygK40YkwhdM/IqVN1FXr",
-	"KjniBfT+9xevv4YaOPbz6cW3QCNvmzaovUew9HDv+84eiYbkVsjaB/C8/XFd50UA6GowWGJ18dbNuRzm",
-	"N2KZ98v/U8nV41fOn9PtsO5wDuXiRGUeyd0SXCGcHvgx03RuGmeQfy5Z7uLq21s0dtzytjepEVbQegFb",
-	"1Ye6g4j7e86jtS9wbncA7kaCqi2rd1tA/y0Y5MekliHx2/WWx/V+CGXzoQp1i95Ocrd5CY3GvQ4vIfg4",
-	"fNn+vehjw5ge7weh9bRzB6UsJ7T1eHls5z1Tt31RpCHurVGW3sPCtCHIWhNLS1xoySLvzrKbbk0od7SN",
-	"9bcAw22xoFUQTvuUDLmZgzelFAhmt3M5b5Ul4lOOBlzFyv3YV7+y2FSHN2WpL05dquqYunp112rYTnD+",
-	"DaWBG3GTVWfxjF5hSTOI20YILaAabw17vk2O1apq16yoWer1QVWMvM1iE2ZKEupr4++kN283MegflMSy",
-	"JanaAg9/C35ihxkl8JRRhOM3ry+wdDkKng9/4On7h+WTCotzApDaAas75bFoKCfaBcfWBux6JOA1W8cv",
-	"Z9Mg5h1djCe2UH2JfPWwgfUtAdpNJmBzsR8owlPwl2M2XkCnTxlLIeuWIrytX+OOAN93jtjerSJXwRn3",
-	"4tW6C754x+6uDbj5bTJahM7PG8xXuCjW3yhzgjAfs+IOngGttDds3UFZsAgxOCSu/LRZ6tdm5fLhF5CZ",
-	"i4uW5X/29rtVpetQ4mmHmN8Hi1+/fiE6v+pkrF2Tht3fL+w9FC3+FlWDXferMQ5xL20Ae1e3U8z31WHr",
-	"KdXuLejyIpEIDvfIxEKoYYnphKUZmlPubT/DMit/uuCipXkXOjovhHJ4T/wCOzjH9uErML8on6QfvnuK",
-	"HZnxlvlvGvnnv/2TIzOYOKhzPuja/Fjk5etn5LdlliIgIS9f/4H8tswjNBIxoJzGKo2H0MzFs9Jr6tK5",
-	"al+dBeDMHYjv0nOp2Ej48qgeFT0FBHOM4GiblRSaVw//+l/+N8xB5qFXVGOdcgul3oBMR25QEL3mqwzy",
-	"hRHclEVHd9i7gmYjh0wPkvY4lN3KVi/tnlQr9w3rL0RYYB9XgYa5jw1ptCM4ccXuQISyUfjdISnXMgB3",
-	"5oWAsMZ6FlfDgiDvLMLMSmAXy8y6bqxfFadp+j+IDlyHkIao8nytNlrLQ+tP21Nsv/ziK9PTRVr57iV0",
-	"iVn0qr+4QqsXCB/y1vI7DHC+Rea8XYnO78NyUPLVmwqgbCFWFSPaRzAgbCzqDe7V4OFweT+qNeFDFxmc",
-	"/Juu6pwxotm1DkLKIF1Jgk5lIy3mNNEs9/kGNZ1gPX/UXAy1TWieczozFEYXuajlWRg4vrYl0cKfRqPr",
-	"fv/Q/PdL85+vzH9OzX+emy+PXoxG11+8+P43jfkW3spLdlunzi0sAe21gq3ZopThfHtIR8DJG8Qi8CM3",
-	"c0vFkpzpHrmYy5UgwDvMWTkhXJOECqs3Q6gFGIpaytfYY+TSm9iJ3FhsA7bodvKVW8R2VpXwzjWgWSSm",
-	"ZaSarHgGWR1Kf/wJUbBWVjVHs4nFItIi5ZronPKs9yEbWEp6x7vEPNBO3hXM/txUwLC6AY1rnjNxl2xo",
-	"QhUzd/7GREqm36/cw7eEadxQHqhd6X6Liikr+AvZWAgaom21JJeMLc2OL7hIg/ojXBFt5kQ6lARBI8Qt",
-	"SORARq6cJkUb2p61k3wAYKsFfuOfrlRSaXUcsYFtlfF1XoikudLg27xgpXl2xUUqV2TOsjQoK3AU9ft9",
-	"tyKYgTLDogkyS43giw9AtlSzxs2gpyuHBtvHORiCyG50dTQXIyo3ISiL4k9+UDk3GGC4ZO6M3aBxVu/I",
-	"BwDePgi8tjCLfTtrlGgqkxMdqIZDg8puGRmasiuOZqGOgLqHR9uiQP0Nu20SWJZhOMv2zBauB3+FIYkv",
-	"1Bm/mSPC+sGksfxyuTNh31v3/0144a1qZTrLJARRb/ML+CNKqKVLU5llcqVCjJZrBExORmbbKCAd1tbK",
-	"ZFu1qTrwC9tL9duzoM/qL4GutPHThR9N9YeXEhWrgGh9BOTEvkErzFD8ZqLpIvG0DVm3h8y/gbUpuXIO",
-	"rqmHjroYyZCaLjgm0YOH1ZZMeFyMQ269+cDt4DLN6bfBv+N264Gdxq6cR4IZTmojOKFqrpDEH9TbOvX2",
-	"z4JV5THN+QWUQzj7Zx2UONiz1lCRGkx3J4MKjdYVG7XLuuyDg0vgUXkKq2egMtcmegTHOLwcRQE9hzpa",
-	"//AJPZw+PXzx/Q9fvj8MPx7v8/Fo0Jw175tGF8NTAk4GsEglMvWJKxazhy/jiMSF/fePy+Xi+3p2v0eD",
-	"XTrn/3D4P33/w1H0aMt4vrWV931Cxn2yKEB4PRZFQrOeq+NPpoVAP2gtNT25eDYkl0bwjJdyxfI4GgnV",
-	"ue6S35Kk/9NfFvS6cx2R6/GCi+6fkiOMhoKPGP28oFlWMSuiS3QkKiaCE9uFzeio0ph0GtODd8PuyW9I",
-	"cvTTX67RLleTRvpt010ftXzQxf/t5r0uSqt/AE03HepvS4pQC6CEGAWbiFWsSVn5FOKWHWmyCP2t7uZK",
-	"WVuqXEXKlpzUju4Nvmg/vYD3cezVevp78Lt92NxtqnvfL3qiDbcts8I0oLCmU5YzkbDm8tu/fgZOgf5P",
-	"f+lMZSGw8ra1+Xcf2j9uyYKgwdb12dumBSxpxC2HtX/o7Q0M1J/M35vndxdUN/pS804YFvvjr5/9SKiR",
-	"XllKJutyHR4oW2WskoK+xek0F3FbsSaXEcWN5wMqon8wvqAM0dmQFm1CC1i6B8o5XUgiF0xZ+E8rW10g",
-	"QVhqebPZ2B3i2mJt3KtwZ/2i+4sZRBLt7aoOz9fHQ+pbd6gPLm9UGBeGWbjsj/bJGthiwiBu2HBTRPI0",
-	"ZLYI9OWrGplve/E2NrzS0OZ0bjBHbNzpTZbJBdecZjHpnJ1+i0CrRArNRcHFLCadU/MtCBCWzoUjCjml",
-	"bQhPoX2/Pcv0TZ75ZioHJmiyNq9b5Py/zUEKp93eQlPd2xs0g2oXe2ztLSMPdhZvc1adsHzbXsUNd8FD",
-	"v7a++Fq2TUycRvqRN8973JFRFD6syHarUtsfzCg/qt+wDdm3HGKL/wZz3p9SkfLUZcXY4wSlV1yxLbBI",
-	"GD5zMINkLqXaFgmLdrmdzbhUcy5f92YjC3pdqR873lJk7m2bMnekXl63ECmzuZwTt1qhoGfx10aPKJWI",
-	"29hfpWbNGZFo2TFCvS/5conaDLJpSIh0QhgU6JF6zvIVV83pJVWxGNOJGjcX4fvx1+fPf3SrYiTaw4Rm",
-	"SQGJnj1hUBtibtPobrkKt6n4ULsbYWGGYLpbz4k/hZE/1nY3tt8bO8Dq+r1kVOlDtMEqe5xUj8RHD6//",
-	"1O89jslf//P/YT6tobAynjbI1OocU5M1oSMBxgIUN+qoS7AgWutC52m2YDylhGlCs15E/r43EqfzXC6o",
-	"lrO8R74iX3xxTDqDfn/QJYOjx91eWdUZx2Y6PHqoOtfdn/4VIVB0JDbtGoHR4vpPyZErwEiTXCrlinRr",
-	"STI568Cnkbh41vXRCubryjS6kU3wYebr6z3KlSAXz05sRjI6EuWxklNHTMDzBAcP08Z424i9sdbT66pP",
-	"j0S8UQykV4cy+UKSNYqF2K7gcGPG3sAyo4oFIK0mSmYF5LfKMAUXpuq1F2kktt4kQhcSHJJSQWkUxNMK",
-	"uVHfeyR2FvjukeewHKhwIv5fQbFMP3wFGSTtcozLr+MIM57722yVtCm/hiB2VQLXqiAuIcEMaQ83/mU/",
-	"D+Dftf9+bT/j9wr+BQxYOyHRX7mvsUv/+UxcXbzL9T/Uvtv4PGh46T/Vvtv4vPFS5QuAmH0f0oPXZa2Z",
-	"vcJ8fKX0EiBoT2pkD7mvlMOzrCnEB/U2Xx+xbUVCEIiCm9Dk/6u7x6ovRJWud1LLSmWdu1uiEyijz7KU",
-	"ZGyqiSw00fQSgi68mn2vC1YDXjEAgnrwaSOREoylCtOEWXKsJZmwbSSvQ8EfmMNMzZ10bxmJA9+cZnQ2",
-	"Y2k3Ggl4GEdRhWaSOJj1kGDbuFbA7M3DDxS5eDYSYJAgrvLWoyGhhjJbjOxKlk0acmvEpZTNcmbGbN5l",
-	"LJUL0jEb8OQx+bWt1qCWVCgzBQThANU0u/VF30bjVIT2QFYfNKZVrB008AwnRc71+gKkRizzzWjO8qcF",
-	"VvSvab/ma5nzPwNHGpKv4FnUQxIAD9lczj0CUB81JHGJto4jQOJ6uDXUvagArqG2RbrgIj4hijGbkR0C",
-	"pbkUDxSJrw/dzTpEyI8FyaLYayRcGFIpxM21Xh68fw/OwKncnFKQ9RujAVUlXWQhgCFldCJzaxoPdHvP",
-	"kiLD3tVI0MrPG6kNIjSsm4vmGX3IeUlZrs5INBlP1hD7RRQD34SV6iMUcqCpiCwziZWRr1iuwhAzBWfL",
-	"5htVEfnDU5d+yzRJRQXNNRIj8dlnyBBxk1zkF9UoXfQ++4yURfKMuFEWWC3nAo4WSDzMUqhCzHJOXcyL",
-	"0R4sfVEkzelK4P1YFpOMqzlLyazgKQV8HmLE/brj4pi5aav9YjDPzEgH5p4L5LuWEV+8fgP3dCSWOUsY",
-	"lMs58TYrQ0zcWoA49a6gGUaLLlmupHAJda1Rq0ee02Q+EjZfsEjDQD4vW+ZsyahWqPVwQWJnkIhhdX/1",
-	"K3IqxZXRaaVQI3GIWdaREGPQm1kfJeglGyfQ61vuvj1/cUoePXr0hHRi1A+GxBsUYkPCiOnxm7enxAi8",
-	"hV4WukdKBRoOMQa7muEBxD9n5Jtvzp4RFCJUz4wIC4vgj1MuuGbk7Pnz54dfPD4mqI6oHg7bYiex5MvX",
-	"9GsIrxLwzvrEDMeCvzC7T5DxnCtNOtR6mLDSauhSKgtHU9NKRQiE8q8eW5ZLqbuQasvoR7ETjylRZtaC",
-	"ZTAja+shSPSUDXt0WXhx9RXpxE2sdYhl9iAnOCHOruCbMouUZNKoktRw2SyLiMJ4BI2Crlm/hOpkDqCF",
-	"NfZm2gKB2Nzp3Iw2VbgQcHBSmSDt8WuGBGvCTkiSccNniZqbJTMNKc2zjPCZkLBjMBmowm1rwppZRgRy",
-	"BhIjRufEBrwqQtPUvoFbDyfQKFCe/KnIES4V2YulIqe6AFnCsBuzEnACy/M2JEeGzX5+TJ5enJ6dkYxp",
-	"zXIVkZTPzDWF2Laeofdj85+h+c9hHOGUKFamANWB2lfN+YJ3SQelDBKXxzvu9sg3gkMIHoCwEV9gWgtA",
-	"2zT3Ua/uQhp+Zhqx2bRhTsBWRgJJYfzw6igmuTSKCooge/DApzbBFWDCGXD9kXAxINjP0AzkR/xAfgSJ",
-	"5Ucyy6nZ5R9H4sfDw0P/f/NgyE7Jj+FekR8hSxWyLMjeAdtttyiy2eTNj+ZORfhwJZd4qWB1zk6/fQiW",
-	"bNtpyLXJj+Tl2asLQKrMXLGpH7F95OaeJwW8KKpVjYqcRw9kdMZs2E+t3iV2X5URyI+GkylNp9PGbpG7",
-	"lazNiLs2W5/HEp0QG8QU2mdylsg8rayJsiNAoYT8SOAPrjQwJTNtEFaBpJruC8eAcBSw/dDGSDyvyDIk",
-	"40ojQ8eDYOuApguO7BbVSigQYa7rSDSIPkNC7QkzOq+5Mp99ZsiMFOyzz6zGuwC7gGlWs7TnZgL1vswQ",
-	"WErYtRHNuUYbQQ5E1MgnECivPEkzTzumnzFtuJPh0K+XTDx9c0acJOmyJAIJg4AqvELlzA3FLoXMIfnj",
-	"9/FIdFw7j3p9dIQqeylwocCEYW7Ha/PSAFbXvHL2zDBVwRJtLZ/KEOunDh4WkQXNDMPExPpI8+EUXMlL",
-	"ZjfIjOi4f3SCLIu7by2nMUKdXSkcEDz9qEfih3NGMz3/s6FdD6HcAf65YDrnibIBvA/lkgm65L01XWTx",
-	"SIDsIaTtpBO7hYOF6DrC9BxsIY4KYckts5GCbBRV6sSwVXhgH9pvf/OPCoKKkVaORGzLyxhK2VD6KEbb",
-	"S2zlkKZKSEPDJGxlmIlMLTMz4pMZ0edP+kc7q8aw3gy4aPzQ37iHg4fVGGjSiUcHo4PYzBSA1XOZ4fvd",
-	"E+z99OJbkrAsM922rkMTkVjENv/khBp2vZyvFU9ohrE7HRA1CZkzmjJYZvj6qOtAVrajLx46US+2wykh",
-	"qGY8NxW4cc29K1i+HoJiaca2pHo+5CkyvxgHMTxL2WIpNRPJ+vD3bA1xh2hLt3LSgisj3wqr5IZLDw2h",
-	"wM2Vs2/nyFdt+uj4oT1qr9z1IGotNL2ObKEtoz1ZHo/cNgD+GT563O+f4OFBwsXVSBgJ6NC2NilcPSIj",
-	"qRWZ9xoYqYcnzCjoPtdUYEBzQs9ImDtn5A9/bfGJCEI0IXMFL9eIXLI1yILHg4Hhu4/7fVRfDN0YiRHi",
-	"fwXN8CqNDpA8z5nhba6iVnxiDfNGQJyZgdgTbCW1TJoj/LUEam86swI14qd87S6uKlKGV6lQeHSyQLU8",
-	"l5GIw+WTgoEY67EgIPgB1b4EbCgovRlPmE1OgdFBB0Z2zTnTNF8HNbZCJRdxksomZOr1e32btMzQqIPh",
-	"waNev/cIEY9zsAc4Kmf+nrEmaCKU01Fk0O8HpVWWuUyYUkC0Mn7FeuRrEJ8c5ev5bIdcirP0YHjwd0z/",
-	"znZV8/YN+n1bhVS7IgQBxftHm0ADD+pNpinsAi0CtXnAMM1qPMb+mprx48J8IoJmQKkrxpSD4R+/ByfK",
-	"wmzD8OAlv2JQ0SQ60JAZ5o/lzBUWu3E8Y+siv8mlOf+sUBiiyK6XLk086oP19T3BR6B4DTBPI94a7qNX",
-	"Mr/EOBSbgU4RnRdK45na2JNXdmQ37okZ18NlRnltN+oInY2Ftz3cx9IHy7bw89i6CSGn3roTb+eMOGHF",
-	"62oBlVhRRSYFN1ItWARbHHvb3H7H3g1yj4UOh27kLDf8iPynp69e3sf6vw012l1Lj+JTSxpjfS6+5Be1",
-	"vzobkGVZhl8WeQ4TfNx/NBKlk7e+KyReyJSB4HFjeTEjEJb1xYjDhw1t4R2w4ZijkDpPBGhrfpAwkk61",
-	"5hgphOZZCSQxLStDQhcSTCHIzAP2OTJiAE8YOCO5ViybQsUnrBUWB9pFpYhYRPiUULGOQAqAvAc8Jxmd",
-	"bbn757gr90iOgxJjm+cVujdMGNbz1ufTvPXo5rcucGm/EfSKcvS37zra5ch3HGuf1Gvryf7sM7CUDz/7",
-	"rG4c39B7Ze7UNxAsMIsIEei3mPLcyEuQzR0xpHEQLhGDEcmK81b0EWSyHomYp+GPPfKCZ2AtSeRiYsRg",
-	"kBeffv3shMSGoMEd4cKiilDF0TK2WUHMdxGZSD03/KYygh75PVsrBsUquLDGkyVVyooLWE1kJJZ0xh4o",
-	"EgeFKWIofOH+Lj3KkAYOh3tSe8FcU8BbSFFW4zJNG+kQHzITkUv6rmAnIG9VDZUpwzALmYMXGeEqC5ra",
-	"BQFS4jqPUCfsN92il1zpU5dQ2OsLCgK4Dac8AG3ARZIPq/GY7e5QiJN6HzU3W0Z23l2bPnvT3TXpY3na",
-	"NVkJzNrWZpCPuFWjQZrj+mV9TvOMm9tWOdlReR8gAqphDObmVAbQBha42f9Lqht69zdvW++Q1+VD+35D",
-	"Z4wo/uetvYBCW+nIx3I+7geuykHFU9lYAK5J5qreb18YGMkGXu0tA/PVbVofKgVizff3yPfg5AIUt4Hv",
-	"vRYMJgSxSEA7gPcdt+F9X9HUwVvhlaObX/lGUGvSZim+1IJbvpD5hKcpAyzh8eDJzW+8lfIVFWs7OvUz",
-	"cXPPv08xzIQbJX4d8HDLr7+PDjYMrliOsE2+sCrzh4ye9yABYC01sEFMue6RM+RS3i0rRcKikl/axJ/m",
-	"VqSIa8JvxtYggHlGIeQcjMBGssWWtoiHmP9+g601bUz5CB59m/P1fu/XNh0IS/79wq9U//jmN76W+gWE",
-	"qfyN3sGnLiWzOaJGcwNwg8VIgA/LpZm479v5EBxGre7o7jvpzH2JkcRTrNBnUTtBxWGrqOaFiFw6EBDg",
-	"rVMl8F6BAW25ZAJ10l038SlM4Rd5HWFoL+VWqwSWo/t0JX8BVzI4euC+SyyRdzfQXqZtN3CPK+drrsJx",
-	"W0r1QRcPY+QUoUYjxlFHJGcWdu2ZYC2a0qONZc5nEGPjACZQXBFYZZmnMeMCvYaEg2k+ds2M5TQ+wTyS",
-	"viHPR12EHHhTNF0DOMgKHj1y7nCB1WH4JJvmDf/JaK+QjscBhiw6ssMs2YG2RgJw8BCdZjTb2KMvY9Kx",
-	"PrDmasJdS4D88linUbxE88DYLv6JNW1Zn76L4S/EA+W8OiMBBamp8/E7jBjXkXe+uNk+UB6aRXNkB5BN",
-	"iaqRKAug98hrl0LJ2vUsOcVzOqdckIQKzOcGIQmkc9x/Eo0EOKBiGweqxvZt6wI7h/QWnePBIELH5wQK",
-	"Z3s5qXSOejZl2jvxSLaRwGTyZ6e/I6+O+qQz6A8G3cjaHQIA28XrNy561RD7LrhUY/Buje3WxUMcA24r",
-	"oKWQE9qQB1cUmiOG1MY7+Pzt0KA9LGqswPhttk2wVTwkVJOMUYXROi58AlFZ9rDRDAyx2M6CXo/dL+Np",
-	"TgHIgc0spNJk8Jj82rv1XPybG8pIkLJZc9Qyc0qrk3BDSGQhNFQ3Bb+XbaprR8EFxp+o8SVb6nAaFehk",
-	"8GBsMUpmDB2HA1f8OnJb1MUUZz7ZK/Y0kXo+BuDtmIlUjQVjqaueP7STMcOt3DWzAGDvsk5km9XWnfA5",
-	"n83NZwtipnkuV9YwCwhfqvFt0+EJmKBMIxZphGOxI4gA2WYYt7ZBtg5isZqvMS3tjAmWU4A9xa7qvzdo",
-	"wSJ3m+QHpJzPHTX+QAkC2NhXMl3fmfDgR+ZZfhVh7wtEV4SXo4+jS4Rh+ei7h/5fymRLLOcbqudhlVos",
-	"gxvXmCOkcKlOMdrl6vl3Jjj1WwhOp1JMM5vC6PioxZje0HUmafpWypc0nzF873GbBVDFEouDvGIpp2/X",
-	"mMTyeDBo87L1hBtZ67nQXK//VkXD53XIHFA5ELGgkAdKXkGhQycyvkvuQlxcZlL3lhhCeB+GFLpgACAE",
-	"ZwN0pq5msZ3Zm6//jvAFnbFdCtibTOo3X//dfapgMIaHdhUaTLoTLiias9o4g2GWn5Sun/1mmYMTaFsR",
-	"wVN070YPd8rv4UpdlGBiLwb6EKgFzS9ZakVkq6HZmdvw3SmHkI2RmFCRosJAy6T9SypYRiYskytQWPBq",
-	"emwVRYwMoJ9GQtAFCJnYvo/ECaJ8TOvWS3TT9b749iNcb3U1+831rdAdny70L/RC47m5/wtdAu7b2VSq",
-	"yP7aHT7bCCmDqhhLoiU56gPE0sZ/BLFsdsKg6iHKhJbaIQKZ8TaXt5y4gkBGHYrL7+NSewPtyul63R7Z",
-	"QGH2yJsg8A1Cc+rRaVSsXQgXePTnwNmnWJKJagt8VwSd0GYxLFE4qWQfGwnQvhQobkiabB0+oujaoUEx",
-	"+AkqlshCK57aQnY2PJClI4EaoMyRkBGK1m4LULBWcQx1mnKNsaHWNI79AOJ1JI77T7ZrdcGi/OL0unJs",
-	"eyl2/XsZgK1ptcUba21YSx9QEyH0y8aW5SnL/92R3U862C/Rax0GTCgsUoTxvQF7CblASx6zg6dYvnMH",
-	"JvpXErI3W/IGkb91w7JhLbEN17IMyWV/jrEKJrrW0IaWssTaT2xVP1RITUussWYFeQpNg428rAcLiY2R",
-	"1AMCFNOiohGOlqa0zvFg4ImyFKzbI08rDAWTtWdSzFi+OTPAiD0ZghwLkcdckSlk2RyJcygWo0IXIQSJ",
-	"C7lC5qmaSDxWELsLL/zdE3cc289E2Lda7HBULP1ErD8R64/gS62Hnd6rO3Uj4+Ida/SIbKhEDHuYQ4MC",
-	"AAhkHW/DxH5bS974CwQtbGTN3KJ0Vxb+k/b989+7b5uj2hvhDDts0y3V8KiNml1JgrP9npGzIKDfNDsS",
-	"W0L0bc62CdXJHIMVpSCdsKPuiY+TH4kFdaAk8LG6DKXmls6N0NSpDcq6xiGipeLfndDksiz8ibJKZ8Eo",
-	"mAZiv0lxRIQcCV863aZlWCwhyx/XNgy1Gv879ME0IwGpySEHs0tGDk38+tnNScvJmcYUjwqU8ZGA7Np/",
-	"/ef/VnMYl8l2euEij7XMWE5thuc4QgFxJJwp4qd/GfTJr12xGfLNBXn+5im5+O7wy+PPySuEl3zZ7/ef",
-	"hbmAqvt4sokNsLgUM/ucp7BGkcOJjUQl9Q187bAEDjf2tAwxhaV1udMx/sGJqUayVbC1T112/8r5AuSF",
-	"tElEfAbyauYG4tDnI0GN7mtL6Rtib+OYKCw/VGcJG4dAZQ/OOYGsjfY5BCRArh1lE/u5XlylfosgQXtv",
-	"2G40EpBRBMT8XGJ2I+ejx5zUtrw8JC8VzOgCQiGcwR5zLIUPC3fcf0KsydhVqkEbj4vTRgk+rEgzEvb6",
-	"jIXUY6+vdCOv65QgFsg3JIjHPnl/WdlIiFApm6hZg+yzc6rGU67jbo8cDwZDSEUZrrnNYxTuZgD6MX1W",
-	"jj6s9Tg4t5DQgCJUZouJ6dtqyu1flhrSlPb5I8MHmhK5t5AkPEhUFtpc9E8qyyeV5f5Fp3OUEWhzZqAy",
-	"MVBLCSqstH6DKhOkMnr4Q/nhvdNxLEm8J+9/YMXBxDepS/5Q8xO6nBVUI8dzHoqREHLVHfrctL6SXsnH",
-	"NNr6gSDDu9hd7uGMI9ERUrdhFihPmYcdt0FfKgaD2ohFRI6DJS3CIj5Uu9zXgTMBZrWiiCMEw5TN0K2c",
-	"x4UoFmJAcWJjLsaQpAkSXQmwuKkimdc5nhoJZMYySxngUXvku1raXGx/Qa+x7TGdsfFcFrnNoRMIMFzZ",
-	"diCzLy4g7kSEFdUw9R4MrEeO+8cui+EaCypCCg3zIBjwVzJvtqw5l++ZeCGxfsd+bK0U4w9ujsjcDvPa",
-	"J5xyk5ssJAb3u9yBJ2BORP/URDGhtwXMUb1/vOC9B/O4rdgV01Nu/Sct/GdnJZu7Yq4qtcfyTlXwm1jI",
-	"3brFnyoSv3l98Zbs8L7H0aZNrFyHKUaVbzCX2BKFeIO9mKsLOXFHIv6759h1S45plAjI4Qar//Ls1YVP",
-	"QgZukeTSDS9VjY71r2V9/ODKOB4JH1WBLpLtOkJJDz/EIR1S1XvSF5oG+sk7/Ul7+KQ9tCH5fyiokUnW",
-	"O2jfnbqpba7NVjpBTeDPMJVCGAeGYqpLMzdZQwTQNv/FK9v1PRIA7GKX58HO/1N2gLt33WVZkPG4elZC",
-	"qIU7gdvO7z5OglDEADupOX8ksXGN/qQe9cgbqTRm8sEQMYjjMg9jymSxHomyTiFa6416Vz/zrmnUHK+D",
-	"XzqD/lH3ZCQYJDzJy6lDOGIUmFhd8ZQSlOEbwRpPIxGEYJZDZ9c00TaarzauB4AA1iAUGToyEm6gwgon",
-	"CPNAyATXUK0HIhdzptB67etayOlIBIZ+LN4QZEMo60qqMM2Wt6WruVzBFLIM4th65Kk1AJQZ2wvB3xW4",
-	"9lwYAReV2s7xYLDDbPrKZc+5DzEGG/+ZBBc7swaahTprQjNnXKnt/InfYchjgcZSoG53aZDdPj68ds4V",
-	"k39YcJdjJHHAqR7+YI7Nv7fork+i2C8QKAiXx1OjqPS+hSIPlobal5lVpS97pu9ACItcqXHp09SEQfbx",
-	"9gylSEmb0qstqZ6Xli34534sbk+JWrKET3kSkLOAxrWwuwWhc+WIyrxZR8dfHH/56PPjL25In/X9z0Lb",
-	"S3n0k/Ht57/+r4Xbjdvfb6t77e9xaUaOATu3dKfMClEKkuij9xkNgmrSESSCwBwxRpEEHz4U8gPbBiTR",
-	"fxd366l03sgs84k/oBBQmSuuMcMklEmJSQdv6bCEuUAWDCMP15NMEpqt6FoRxTTpgM/W5luH9G1YlNHq",
-	"wEpCrRft6o3Fc6rGC5mz2LkoGOSUhOIgdq4rljOXk4EkcmGrOIzECwCfGEGpOiLFmKufhpmHnJgtRcKG",
-	"rlko14LVQzE5A+biQLcK43kIkFC2X7AhUpwXOHQQvAFJ4m1fzunkB4olSHq++gU+xhVkxNVMuK6D7mxF",
-	"IIoJ3vUQQFAg8o9EXgCGxAUdAdiph0JiHJHYft+jaRoPSWylR4RQoMXYQyx6DuUUbfd02ifDX+MupANt",
-	"9Mj5F/xP4SAgS78OM6uUKU/M0M0pd0XK/cOhI1AKrGzRaIs4h4aew+ZussHbpFI8sZyqHIq5Ae7RKcOC",
-	"io0ZPM0d2j/X4p2mmzzq97eXxvvYHBM35wVrRn2EqR7/NpJg/S3KwshazLGFOmgVOFsFi43f3M4YmRet",
-	"vUtBDaeNsGkoQWizKZFOUGGwTENlKR2CAKaAERKsrDZoKBTaKGpZrx74hOiByO34aUmDh4SSQf9oJBaM",
-	"ChVUOKoQd4AcFsKGz4igcBxWlpkU2iEncWRl7RJrEJI54hEN57TVwyPIE+S3lrB3Bc0ioqUkU0O/Ma9P",
-	"F71TPMusjypytcIspjEM7KmGTA5JTlcjkVJNywRdep7LlSB0Rdc9chZWxiGd4+vrrisMaY0TQdaoCVtL",
-	"m+nHJp0Hq88wBDcsCuXq3mFKQ/MRQa5un8r8WSfOjGSWxMequzRfGZ2wDNIB0lwBTx+JzkY+JUVmEsvv",
-	"BHhcPCx6JV39NlsgDku6UyjbWEJxT9wl4WnFxhXUsrSVin5FglI1I3HBjGizUb1GS7Kgl2aEGiL0FZ0y",
-	"TAiO+fLN1XCIm5HA0kggCShbXWEBw79kS2RJPgXU4JgAUARhodaU9gAsdmLG8mXOUeKg5OJ3Tw8Hjz8f",
-	"hgVzMP+iX3wjBC5prjBX20gwkUgf3UA6UO+ZayjLmiAodMHMsbeyk13RBdWa5d0T7GgkTi++rXQEfKws",
-	"HaR8rqicrrCy0mStGRblu6ALRi7ZOnLJzv2kIpRyvZfPleVK8ex99pnLrTYSxF+ozz7D6jS6yEU5r0H/",
-	"qJZUHUYBQqozddkak4jaDrf3nC0zuoZu84LFJ0RIolhiboVZ0dKNXJ2OM0/rcE5DKN8TPhhUYKhO1xMA",
-	"Lsg047O5Htr6CNA1wJnMgM0eWLS5FTZdC5ovGOBpXTb8HGaCwGuZE8hed9x/AknEcN7Vmg3caCplfq0p",
-	"F1zNQaTl4DY6BEy27cycZUucDEkxHTw2lMW/PpcZorIu2dpfLXN0OjEUVknUVdwdCcNWK1X/2PVS5to8",
-	"2SPfwShPUWo5fLtesiHxL5cZ+kbCVrqy9SIRRu50nY3jGSMdMyJ22THU7q0UGOg4homUJnbVZWLSwbLT",
-	"NOue2IwAcV2cii3oO+gWyOaEOUG0c9zvd73hCA4oV+Sbty8OvyQdQx8xG5u5Ood4HRc0vwQ4GBTHTLsI",
-	"hDo++rI/Eh079QVdmz7eFdIniYxHB/EJefnCbNHp+csXWAyMiVR1e+QlFxBVYMYKB3IkfIFJCB39Vexy",
-	"D+D2ALjOULhLvlyy9MTWl4aCYuEPPZwXHnIsLgD9Wv0RN6xHTqGumfLeScziKNZIgWwxSSx+BrURLfTw",
-	"xyA/n1yZj1YEMh9qVSZ9pclLLqDY45op8iPoKNBCDB/g/dhVR3SoFfew42tlQdAtX8LrwJDKl5HVVV5F",
-	"ndoWg6yWjHNvuSCRys8R+es//++kX2vBV3HzLwNwMKj6bA/T9h+gHVyEMYclEbLspWSetZm6cJiNF9wP",
-	"ttJ3hOVEGemTDj6CothRF2tJHpLXQQZHw5RzueqRc19k3dY6XYL2SSDnYIXCQ4rAEmxk7qvdhVDiRH8Y",
-	"XERHIRnV1Uaq29F1FlxgI7UegvXquLKkZak66KbWQ7Bi3R45lyvLaW0ZNMOvvfRjWkKoi1kfAJ/hPQj7",
-	"Be5nLwUaZMUabgGICPhgpRByoRiJe2AeSlnCFzTD/KtQmc7RNSDCAqhUfNR7zA4fxV2MfyKGrhWKilS5",
-	"5I0SipV8Tb82BPVMTD3ElWT8koVFajH1GJbW9SsCSUMg/IsLEGIsp4GqiNUSJobIrjFZrTKTfKCIudOe",
-	"ssLJwtdFWBwzLeySpm4JkdRQV1WzXEP83dZqNuto5fCSvaNiYGQfX52YioCmWceEIXaYPhOC5+Gh4/6T",
-	"z1EWCmrq2UStS1tlsnURSDwezc9DdAueGVhjzDpu1hikRFzHzl//+b9h1hsvZmPNeEtYkWzJHEoYWxSW",
-	"eeVxv29FbvwcJs7pusxWhtEDT0P3tc2wapoa9PuReQM0FrjImEwVxSRbm9EoLNZ+xaz26FuE4m+YnU+K",
-	"Q6Qm6Fk88TlL6RokoYlEhDWoTOh8CWpOPVDQKBbGyQMMANTpzm3NUGv0dKkSoP4rLnmv14vdvqFN8BpW",
-	"YTgScRyPxK+sLIMdB1R3OZdaglRweEQ6lrVustDuSJjjHTmtCRXKKj9wpD/yNCFyFAbS+sBWRoKb51n0",
-	"8ijq9x5H/V7/qD+Iop1P9J982fzEIDrq9c0Tg/7j5iceRQN84vjoCJ7A0+N+j+Dlx/3ou8N+/3iw5YGj",
-	"R4/wgUfRwC7oFuDBebF/mFYg8f+erQ82zXXmZMBJ82IgsAzMJ+00YcBTbTHnfWAxoX1GExytkkNvG9cd",
-	"1GNqOzYfFQFmFVqGjpQQ/q2I/VISv4NSP+UQveRuRicN86nFxGwbkJP+Wy/aa/fC+3vLSFIESN7owClG",
-	"1QY2FwI4PxbgT5FEmjkvuHjJxEzPQ4NymJvv48UXnhc3hRWCacNGE7qopNyXjukYedPS6txq8yOxYcOJ",
-	"0BtlX7KswaertxtmXRQBVqbJVrC50DEYD1xpR66c3mN783AsOQV3k0eloXZdNV4YBboNvGYiZcaogMPQ",
-	"DtED6InCZWvOC/HvMlfzJzTPLzCfpFQaCmkLZ/MPLnPowSh2YanDaMwG58UeZaq2OzAcvXGOZ+oMgEMY",
-	"sRP6bfmIWtUANLt6/wx+V/FP5yxhHAIaqwRtWwHTW8g654W478wyZljbafUn/MwvoTKV9Qfg4b3TK3bX",
-	"wBoLpakUYXH2lertsbiLHjkvq62MRL1enBNDnRVLeS/bZlhHUEzOJq+wZfR57n2CYRWcHnnaiJ5wZXiw",
-	"1Rk3MgpolHYQDrpYKSVTLaHgI4VlhkluuAoryQRoCm9fPw9RRiPxjOWGttTT2zhK84fTKPREFFklYFyN",
-	"RMoSbkhWUHPP5iXkwuwkdOYriozEUS/oZVUZ4tbI7yGJ3aTik5EYhE0kssgwrM87WWuPP6r36BOZcGFB",
-	"MrU3jsM3rAfDLMbCUG4tAbjlw8hNi9byBGHntbYe90JAZDPuxmcmqoTLW0OFPQ2YvCfwPeC4wt6ieioa",
-	"eL3SZcdnL97MNJMzdMqYozOhySXYNcHIFSSwGYnPw8WpxNAPSQyJJhWoT2byX4TPBqH51rlE7VGJ0K/k",
-	"o/Nxat0h9G3PkKFXFWSdh87BQYbWHShLTokPGLW0JN7OLM89JuKXyDPd6LaWYoGfP7HPn599XlQzRiHi",
-	"sxB3irVBXmov8YcDbywxKOkPEIPQHGPaN/eV1rKuObKhSuOe6vYIQB65Iu8wKJJbmiYSVuejlVJmNpuV",
-	"c5aVFqFOyd3lSmDecpmHgV2eW5QwQ2thtnp0WcCsRN9qf3Me1GG3I7EVHER2Y4PMilZJNFcbggVUVLfL",
-	"7QCHyGE1XzAHl/T+fif6Q343YLXgiuXJnGzLkWcdIBhrb3vtKMYCklgXyuJuj7izYDe8hBADokErlk2B",
-	"RWh6yUBI9Byk5PuFuBEmZJPk22RjWP6UZalFD5m+IEO9z91mXWv2aJx4hxXhaQUTFKJ0wFsARgsj5xme",
-	"aLPTOOZnuJ0FGM+pChu1rNxNDTkxLiXObrt92S7gB7GRuzcA2lH9TGnAbuZfXh7Bo8LzSlFEC6P5FMf/",
-	"ydx0/9pvmvrTqGVgeHrnAvz1nC324eY79GLb0cMfvE/u/R1rxtMSlIDkMiI0yaWCAsx431wYsw1zjkCl",
-	"3VCcIQPLLubhu7KM1NYKAa2Xp2VmThwXplFxDAATTJZghS1SOlKxrYL6Jll5efbqojL1DcbmgA/Ol1ON",
-	"mfMjupvAufvUEapr80lN+MVXFKzfUlo7rXemMACkuKWWEFZAUqqAkhU5FalcEEQmdzz8+GjwJZlwrbrl",
-	"XZrxKyYQ0axsNWXFkpxpm5oO3FulQ0tk6xOPsgA8CUDNwf1qREILWx6JOVVzzPoH5rRMzozwtl0Me2uG",
-	"ek/pBaDtn0mOgr5vcHjCNkWlumM3QM0B4SR++fnhPgk590984G4TioclIDSWVLQMksWnvessZRnTrDV9",
-	"OWdX8tIitqClE4ufKtFu/aNuaZC2WVpsYi/IRjISAXTPqXI5tJtaeoVyRhOpeAbDdaTi5vj5DxACvvnG",
-	"qHYN7P94c7VwWT4Fkv8iEgKbrfjwa5Izkar7TN6rbD6LLQl7q8HhgYcGCvWNhJwaAdye/yDvYqwyuWSx",
-	"hY5NqGIhLh8KH4CBDSWWi2fQUuklit0bcWnwL4drnltxkcpV2eGg3z2BaCydy8xBURWHPLc//cuAXDwj",
-	"nRXNBRczjLT46V8ewZdon+tGWEef0JG4mLPVnOaaJPDfztnFa/LFl1/0Dwd2Ot8xpWfgfwcz1dHhQJWN",
-	"R+To8JGKRmJwOFAROT88VhE5PjxChemof0066D3qgn2CmYWk6EYsF1ZVPXsKPWaAJAqzF5/UMuqjySPj",
-	"Xk0Zidh3MCRTminMO3zFZYZmP8zHBMZNl7I/yFA1ElxcyQzMhxAmM4WExQhGXsmNzYFkwbagl9vC4UjE",
-	"uB9gzhRFltk0zNglV+Ui9MhTxPCSI4DvlrMaCXOwT0is80IkGB3uEgCI8ESA8wmyAXQEzQGkrt1aGIYA",
-	"ZxKuFbEMPQrkQ0ByJSzarDQhV2Ik/nBKgJGnRc4UQjMqNSYikrNZkZl3mspNNKumMJotfGQXrPJu0rF8",
-	"jCTLTX342bbGOsI6vfGvNSAwnwPCzdCP0IgeES7Awn+1FUZrDsYdIEBfokOh1rv1L2zvXcs76Pt3ckUW",
-	"VKzrdzKq5eOoEtAIA0x1QKS3jdL93pw8YBDmDhhUUgcMPnLqALxP26zFLOcA8NDKzzjyoQsiLUnjp5QC",
-	"dy8WPcv5VDuJw0beuwsNRXzAh2XFjBozN5tT5bz3VRoapa77LPMO2rbppQI0wH7jGjC3ZAsRSXO6QtdZ",
-	"KeuAlDIMZQcbTItGWGRlEMzBCJ528wXKRJhTx4pCuM4eEeRaA9EDbwUDm3bGbCV6xB1CdH1mePd5gzBi",
-	"xBUY9S7mt7VE/Cce+IkH/v+YB/IFnbGH6mr2m+tFVmWADbETDdUdDGn4xMbuo5x0SXoRpgO0OyJIxe6Y",
-	"K5m+WVLkXK+BKk4YzVn+tNDzg+EfvzfnyHZYvw9nQQx2gXWvgyJlAeSjUyrjqtsLUisWQjWErb3ATDRh",
-	"W+6ioQc+ADcaLqqCJu2abDZ6Jq5YriCjls1vHtTprgaoh+2F6dA3G/3DU1edB4waQU3rav5Itmp6uYQg",
-	"VZMfRR5oEOB+PN9MyrxJlV6se22jm+a6m1GJSypzndTLtfjW3yUNDWPOZUgcbHMYetGC56RM70yWMuMJ",
-	"Z+GyuqSHDa2+OUOrVvi4NWs1sAN+xQRTPhET/LlgOueJmxZXJJWJj4urhMLhtn7//v8LAAD//w==",
+	"7L3dcxtJli/2r6Qxd6KB7iIIUlR3i4yJuGxK2tEdfQ2p7t7rhhqVrEoAuSpkQpVVJDEtOdaxL3tfrx8c",
+	"4Qe/+ON9N8Ix6/BbO/y6+zd4/hLHOSczK6tQAAGKVPesNRHTIoCq/M7zfX7np06iZ3OthCpM5/CnzlTw",
+	"VOT456ko8sXxuBA5fEqFSXI5L6RWncPOmUi0Sg0rNLvksmDnYqxzwXJ4RapJvxN1cvG2lLlIO4dFXoqo",
+	"Y5KpmHFoaiaVnJWzzuEg6hSLuegcdqQqxETknffv30edOc/5TBR2GCdlfiGePFwew6upYAn8+JlhMoUu",
+	"JXw958W0E3UUn2HD6dqh/IdcjDuHnd/sVquwS7+a3W+/ffKwA+N5korZXBdCJYs/iMXyQI5Zkkmhip1k",
+	"qo1Q7I1YsC5n8D6ThnE20TplyVTLRPRYMeUFm/E3An6BBZMiHSoYojAFM3wsjpgRghVTwfRc5Bx6+cyw",
+	"oM/+ULnZ0n5V8w3GugODra07v3oq1KSYdg739r+OYB/8Z1j1ohA5tPnjD8c7/y3f+dNg50F/dLjz+qe9",
+	"aG//6/f/oeO3yxS5VBNaHGWKvJwJVbTvkPS/M5kKVcixFHnEuGFzbQqRsktZTJksDMtLZVbtYtXJTXfz",
+	"ie8ch31aqlVnKi/V3Z6o9/C+mWtlBJ7wb3h6StsPnxKtCruafD7PZIIHYHee6/NMzL74OwMD/WnDHl/S",
+	"W9RpfarPeDbW+UykzCxUwa8idplrNWGwxUznjLMLnpWC6bIwMqXzSM0espl7d6j+09mL5xHjjI4Eu5yK",
+	"XDDOVDk7Fzk7F5lWExMxrlip3ih9qdhYiiyFV+yJYzofqpyriWAXUme8EPjr21LkC+ZpAd2bVAvDlC4Y",
+	"LM0C7sH7qHOi1TiTyUddPTwowugyT4D+mIIXgo11fi6BKuKPdKG7nIgUy8WFFJciZTzLBU8XEeNDRT/B",
+	"FdBlwTgbyyJi3L8MP9DC85lgsrrbSGNMIbOMSTWE6U+mRc+ux2McRirUx16QQr8RimU8eWOYuIDtM4me",
+	"C5ZJvOlSsfhqx12dHfzNxP0OUhE4CTx7lOc6/5jDdh0zAT33GUzjXKcLZvjCMK2yBRt2ZO2hYYdxldY2",
+	"GYjF+6jzXBePdanSj73uQJlSfxyrSyKupClwZC/5ItM8faX1U55PxMceIK6ouEqEsLfDiPxC5J8Zlmg1",
+	"lpMyFynL5EzSaM9EfiET8a3iF1xm/Dz76ANOecHPuREs4QpW8hz2midTkTKlLyM/B5kIYPFmWhYFkL9U",
+	"X6oICVp3jDT0MpcFMn1pkBVyldjZG2gxtWfsXCS8NAL5oO9bmqECwspVer4gnt8Uz3a8fNY2Wfv0biDJ",
+	"4Xxfaf2Mq4VlOuYXIROfGX97cqCd0jB9IXJcAXsSbmu63ypeFlOdyz+Jj3o1n0ljpJpEFbuMPBPUOTAE",
+	"/Uak7FzwXOS0Ko1Jf//99zvHZTEVqoBRimWBJf4G346JVXDFYqRRMeNFkcvzshCse/r4hH351f1Bb71Y",
+	"3pTtaOnmuU6EMXAJH6lCFouPuYLfiyzbsVKKVPOyICngPBf8DYrPZSaYHofX8ciugImRLBoG13ao9Hgs",
+	"VApXFMWPioKXmbBs81tlyvlc54VIn4lU8le4Hh9bpMAr8ZlhJ9TrDowCLgdQIa0aagHjSSLmhemjTGv7",
+	"gCEc4/dAbJ7AsuHY01TCOzx7mUMDhRSmczjmmRHNkVRvs2KaCzPVWWqOcCVxDJkYFyAXsgLVGBiSUBOp",
+	"BKopY15mBeuaKQl7WUasXyt8cCaKqU7xKM6DcfzUOefJm1HCs2SU6ctRoTORwwhGcxLsxFWSlUZeiGdO",
+	"e6TzC6eDF53DTqpLYBQRqDn0wN5gELUpmySbwpZXfc6kGs25MaNxzhNahp/Wtr1xyx9nJlM90yYRKTeF",
+	"TGSxGPFsPr32NB7jQ+8jknBg07d8D2S9kR6PxnLbN2dcpbzQeYs+fTIVIEFegjbNxlxmZU7/0lG7EHkq",
+	"k+IIP+hiKnLDOCgd6YU0Ol+g3laImbluLNjPcz4TNJ6rJ/TSXrW+PM856NClkm9LYX+H3bITENnWs74a",
+	"5eZujwIc5UxciMxYpZ8evR++t79seaEX85F5W/KcGOUHnH9dFpkU+SjR+o0ZpXc2WdePKUpU8P8k7q4v",
+	"MFBsud8XIpdjyzGWKUH92L/77cN3oHUHr5Dwx/OUdZ+cfLd7cvJdj834ggFtZXzCpQLlozBDpfRMgoaC",
+	"OnufPbRUeH8QMQ6SEPv2jD16eczOvt/5+uBL9gypMPt6MBg8HKqEZ/LccpSwe7piGT/XOV7Vz4wl38yI",
+	"wkDHTF9aa9QdrPh7/40+/zuRFLCgFWt6qTOZLLbkbI9QK/VMDfjSWOeJiBzfMhXH2ppFLU/1wxnONoxl",
+	"g7dXs4kNXm5hEhu81coiNnivxiC2p+c1Ct5CrjcaQY1Yb/JGjfTeiMJuQkm3eKtBFzd4s07lNnhhGxoH",
+	"Mi7RuSzTYAwDLbmV4hnWTQMitpp8oSh57TDfh5rPD+FGNY5G24FdeW9WX8doLbFYTwia56R+EpfvYW3P",
+	"2rd++RiFF2ztHr5uo8LueDQdIUZOFDYEugMucL+zlgcM+vdDHtAfDAZ7LWfsWPFsUYhrqX2dXpPFfnO/",
+	"AAp6xbVWfHimeaCwK/t+64qVqSweXTg9cvM5VMyhoRqDInzJDUu1EhET/UmfxXmp+kkueCHSOGIxWpf7",
+	"Y1nUPvP5PNcX4Te5gGGKNO4vu3giGIFucQECoXW6Nxl+UTfn0FB7Ow0qyguxU8iZaHs2FQWXWTv9mPO8",
+	"kEmZ8dxETKokK1Gv587CnqNpiRut+q0eq3DbeNFxE4w6/vrZ3lfu41M92XIXxYVzsG7EyYLTssTKGjOw",
+	"LbeN9YSXMDyz4vCQAdsAhQUvpUqtmeHQWhXwDjshM7DTWrI8VEkuC5FLzsa5nrF5eZ5JAxbSSSlTeLlF",
+	"fORJkotUFkhoInB7TsoMfsT+rXB59uIlWhbYPBeJSAU2RZvLzhfoGuIZXNmUzUVutBoq73/OBDfC+kfd",
+	"Si+drplUTtdbFhRQithye2ELy0Kkyyv9GB4HrxhZPxJonCW6zFJm7cruXVwtxWLgBSKNYTOwL1yZmI5k",
+	"TG6Jy+kiONrnWmeCq/q1WZoz2lTbL1QgDuNRgBEB40Gb4hFTZZY1ZzDlcFQUOgov8e/CT6Sd4kMrZMkn",
+	"vWC9vNc8rgLU/MB+ZB3oaFanEaUicV5KbyBA48ClNMJOLLQQLC/eJtyiJmLSTgWrHTRGrpjWqeTCWx7p",
+	"1hWV1SzRM4HXqZWCGrg3IIGs2EcMIHDPwNbMBDd4Z1EtDLfygzesnf9VI3Qnzi9TVN2Suuxhl2ot2a3W",
+	"vS36An50rCigXXPUEA9ZXEl7wPNI3IujoYoDUQ9+aUp58J0X1IBOSa3gOy+aYSO5gF8uxMiJriMywUcs",
+	"9pIaviWMTEuejUBagy+sSGawlZlWutBKJvBLmstxEfdZ8C3r+jUDImgPTI/ZTUDTmPMnFxoIC5ybpMgW",
+	"zDdCHhZYpUudvwGmiW73vusQPU5ulxgvmFQTYYpDfEWJSx9uYzI9r3gDXUuu8DSfPfQGefRZV+Ef8Csn",
+	"Oe4zw/YHbKZNwYDEq2KonFRCfZio8n1/L0wxARsIiSl4cQzrGiGGKv6bR6/Y7sXebpELlZq412dPaled",
+	"lSoTxoSkI5MGjReMm6HyixrZuwgve/s2XpUxyBQg3Ci2N2CNcQ4VOlkj1w81UG1VF4k6fZsL8i6wBsHs",
+	"WQuKKmcrdJO6VtKij4QahT2onagTqhArTmmoTuBTwRmttAYciTtFcFPhuOCNVhcinwCHRmOJSKQBDWKe",
+	"67HMRHCVLRGLOlc7MM+dC56jewYmjJf7GQQj2UnTF27m+OkpT968GD+Whfvi98srgN9/w5M3J7VVwK9P",
+	"z/xK0Ge7HGd2NR7ZxcAfnwQrYp+mZTmlVcHvXlRLQ+MN1ge/eGgXCT+c1FYKv3rpluulWy2KZYH7QMa4",
+	"NmLnDH1J+CDIwUT9/P0CTeQa3WtvEPzvGtsnxNhIFMVaeM+l3jEyhTvhnyLlD0gBHq8LnpmIDfr3gTYN",
+	"+g8ePLhWL3zw4EFNM7zfPqoi19lT4DRmS1Pg2VRcTnmOoi00Ql5nw7pPzl6wr77+arCz33Mc08fngF8+",
+	"k0r0Wxhkm942msrJdEM7in0j05cbvoD7LzZ8+JLnSqrJNgNyr2w6ooZIYIdXb6cxkNqso9qitYoBtFWn",
+	"ZdYqCFScAmSrrv8oCsazfsROMqn67GQqZn22/xXr7j34eq/HDh7c6x2yeG9n38RDFGop8O1cLLRK2c//",
+	"tA9MrWvH3TuCR++ZGD2h/pl77OzhEYv3oRFWXGrgo8qIpAQi4x7zXBFbxPN2xOLTnQN6hwWvRND8UPFz",
+	"fSHYF/i8c1mjVIuRdZfsL//4X/ep54OdPROzsS5zttzzUPmu98Ku9wZXMSuEqr1iHbX4NEb+6bFn8XVO",
+	"BUvWiTqwHJ2os0+fYDqdqAPjgd8GVxtyAdjUPWoB/rrn/tr3350euL8O9vxz0D6cjDI3bVaKF3P+thQQ",
+	"LmdEATzb6Jx14Rp/eVDm1dWeA+VQEzQmBnGy9/f2N4qTHe28/uI/tInsGL28rfudkcmGRIw++97pXrng",
+	"MEhTVyDtw2B7yTIQJRMtxmOZSKEKlDPrHN/EpFEm+oLnEgTlGN2nYjYvFhGJkXSjDVl0lIDWoRt8Dshe",
+	"xGKrZKGeGoNzNo5su+i9RU11qEBTxSPTJI5EJka8aFWR7HRLhcqle7rOMtaZj3hlLlz6LQmsImtVPfcc",
+	"vINz2s4R0eaECHdmeeJPFJvpVGQ74m1JxnCdpyI/ZMBxeM5+OB9E7HzvdWS/GOlcTqRiP+B3b0ue5hwU",
+	"P/tcxM73Xx8xpdWObQBbNyB+xs/gT2tO6FKgDIRnKq3o2b4PvB3hr3Gv5lbfzHtijSz32xZitThx0iJE",
+	"wHE4JwUihc9OX/bCxUZOgKhTHfq2ft1vbMaLXF65jsNdi5j5+Z+7f/v//h9///3f9v7y3/9fP/+fEcv1",
+	"Ja5e8BztXG3Jbm3t1i8sWX/XXywbdcyNpx0qZabQW92xdLzcg5OTWSomuRAGVnCcC5HqWcQUcCs2Dywb",
+	"gWeM4odGFyI3rYIvJnsEbmp6ngiU11hhbhhBTdZwfH53rz/oD9ot29ZnrdV1F/qRf/B91BlnfGLaLH1J",
+	"YRg/x7goGggNz1qmlHaGqY0DVB7L4nHGJ22UZCr4hRSmIE3xuoZQszqb8hztVjLdLFEhCvMuWm2K3tVZ",
+	"X4qH0hRSJQXdX+OUkzFpJOvSf6zV6NqVsRI/3AZU6luHRz+NwHK8+lDRQ8w91H4/QEqoDX2vbehIXq8b",
+	"ORJeeFq1XR/L36sFY108pKBcaSWc3aBUaDa4djE9Ob+WY8GMn/unwbipZSuToggKH5diRZLIrZTOmRtw",
+	"xCa5LucQ4bqwlFwqYuZGVuxt83AtGONLGFbbhai51ZtRpJAdIdI6gQYmUogctGkcTLckhdo6pWsstndD",
+	"mzaa166b1yk+9D4wvph0DWn1S5+KC0lDN93F7lUvcpL7v/4vl+x3TLFLnDczCc/ETSeAXpdrZ0BP2efR",
+	"AqSRO/AsezHuHP6wCbV53RSDX+bC4E4pxhXztNpf1Si4q5J8obmwx5BM6BTNMNqc3jUk5Za8R7f49MAK",
+	"CQE9o0tn+0P5vil4UW52S87o0cChXZ/GtyffPmOJrnS7ym5Usyt5K9ISbXWi0mgjovedfdoTP8sJr33P",
+	"PgbGCDzMo4SrVIJcspI0+SfATp3oXFhTcszLQpPug59Bo7kC2o4Nowc5k28E66IiBKeOLLywRIEkseLl",
+	"3sZkjKjRiRtlGy1zcwWboWo3BP5eX9rOKfgVL3lqJR8FJy2TBkQizUw5g3+US9KNAzrTLhf5WW1+h7/3",
+	"ryxf5Fcuc1CwEsbURSuGEszmy6KV3W4P3WIMgkcOF45mhEZ9kd76qGzfyVRrIwyS/2IqTKVwR4xnRldO",
+	"UCs00BngCi0yR4yfI72y/rXqIFp1/VzQeUwbs/LTvfV5BUPl5g0xNuz8TyLXoylXaWY3eflwwSN1YmAo",
+	"acUmrrJLkYNdZV5Y93+u0zKBayTVWCpZCHc+j8i04NZFCcZzbcT1wRmUaUsE3At6y2JdVE8Pdrq/pX1O",
+	"LAtPdfvqt9EYJ+233cnmMjbU+2VuUlM/6+we1am6wwY68G6gQF/2opk3S3ih2QkcFX31XCOq2VxqemJg",
+	"ElnSw1qNsJiQrx7rPLnestWw+6yIQJhp8hDiIUUVanM99Jwb2RrisrDhASQgmCDWVypwgKamlfjdyD7k",
+	"rHzXc+ZyNuP5grTPucyFWa2qS1Cg+AVRpESAGF3daIjFJmcJ4xPRcFRoJVYu4AqZL9DquClGYUDg5nTp",
+	"u/CtdtKUcQxTCNsH06XOPXviRVyPVGhztyw5G3AH3GmIKLArWOG2aQV7vfKcP5Vm24i9Gx+gLQyMjaPU",
+	"FCCUuCpGyQqTOJnKneQHj7J5dYSsDgGrhV/3rz8ybVsBexCOYpO1fh5qq1vYyzGajYeGTrrzPE3NYYAg",
+	"QGbObpulrhdZF4nOKC9Zl0WiZ4J0DG8XHJcqsXAc//ovKEpCIgYpH0MlTCFnFr5AJVOdm8g7bbxvnFnf",
+	"eBXfUIvFAJO5ixA6+a4yfSZvdpxvX6R1vgwa4QIcvqnIhyq27Y+QJ0AEb9xnxySZgGBjipyjWghLRWF/",
+	"3nJs+kP1MhfAOZDfI2MnScjKwpCjXCCqx4XAUIa5fxzts0PVjYk+xRA6o9IRPgkTj3utngBaqOVTiiYr",
+	"CB4EA5Ie2xX1NkBQvrr4K0w/R/ndpsDCc7DwoAoY0Tu0pokIbSd/V6YTsnKuDg9ctqlinCMRwqWn4Tfu",
+	"L3yLQUtPRldr0GuANaU5v8QMSc4yPWlsL7+Spj1izR5SaNy55FxERkqsP8vwLz/GkQvKgsRkCKFdds6F",
+	"ADwj6537ac1qrdVZ7WHcmLDZUAhv5aka//JgZevVUd9QzS6mouDbPDtaY2W013e0ja2nQTGb613tbHj4",
+	"akfNTaIxwMhfKHfwqj1oW6+VtJh2YDs6/EKJJcNgBe+TSj5R2gCZOWI8+AgXoGL3smjgV7Cu0mTV1zmo",
+	"VbnWRMlqRBHtQfgAhccM8BEX9ETmmnVJx0RYW51RwVWESWG/njRaH+3NrGtJM9hnIw8W5m9IgpJof+na",
+	"jp2Jtj12lejlDZv2/ohWb0HOJzcdsw9gw71sTy/aGwx+/nO3sanodqotdW+39vHGtlHS3248H9KkN9z3",
+	"IJtnFPbcDmeTLZh7wRA0DL5ww5mS7rvKsN40O6Mp6ogN6D67o3YbQcZ0tpr3JlhKP1R/iINtWrGGwcFc",
+	"ul3REoFoPYfBhVpJUM+89bZp18e8BgSQ6rPjKswWAyvmBFoxIjt8fOSzXODXMVC6fhCPU3+6E3VcsCoO",
+	"m3J8No3JrMb8klo9dY0GPx1X7Qffnvqu/OStqrJt6lMtSuQWQj9qzvHN2oPQFpGOqgiQ5Syoyg2AD1mv",
+	"r6QAHYh+D2O3de5jk3vbiaG35rbdzmV6mz7Pa3Jfr6eZ23pzbu4wWfZ43NBlYS2sG5pzP54JNLQ1tpgL",
+	"6+d+jfmwjeI9lFnZ7rdwv7AxZt0hjp8Eox+CFHhlkXV9sPzvLDmkoMz/+39kqW2id8T2iMeQ4b1/YxSC",
+	"DeKfH4WhIlvIxNc5MfstsXE23fKDEijXu++dcE5BhTQSx6lNjSptQa5XS365INgk0aYhr+Dx1TttB2zJ",
+	"+w961YiyPqGTa42c1aMtP9V82BtBxIYzCN8PjPW2x8ZYg+zT9qvkD95mGtmKLdk8A7q2V8v6nTs5luNh",
+	"BxHb24GI2rQ1vuPIQkG2vdm8vrVLuT7cpvXYrF3AAGN1iyWsLtJGBozGdtXtI3ZOq3NPm8d4M6v7K3FV",
+	"tFjbyQMiyK5oYWNyqd6Auf1cF1MmFKB6uVWsvJuAzGAoXwsi8eFvG8jFc2Ff9VJ97S7dznhdFBT0FnTU",
+	"NJo0Llbb3rsAupZcAeA/NlqPN2P1TBisx+IUbQrKxtqNiInGh5QrgN8xREhjM42WW67YlGfjKjm+4JkL",
+	"xrFpa/XwvRiSCsbicuQvnxmNdT4y+zEkJuyaH/fJM47uczJzDhX1jMOGdFxKU/OLh8OouYswDbLqIa7H",
+	"8rdOshN1Woe1oRJhl/+hbRpNut+7hu2Pj8XlqW/+sc7P9lFt+L3gWTHd8q5WAp+blX5DByRdbDhk6vfF",
+	"HzpuCKf0cvP02a7aDl1AT1vOnbKwCVwFuZGRC8CJ7HZF9lzpHKKJ5plo5CV8ebBRWsLrJpL3IPry3vvW",
+	"RIUKx7vyANyMYgYa2OZs5xrPMGHBWb3Y+nGZpAsBIe6XTU6ymZRUD0NfqyVUT4JmgXtitjBruyU9wzeb",
+	"gHPXMIbG2avEezeO1mNoQ+O3FFirifrg+irKLTSaUVpKfK7B8RTgFUQszvSlTTIB/hH7tJEW+yu93W6H",
+	"XJ2qdq2iCK+O9FyoVaD0dmbSMDsEm1B1vgiGDw0wSsHqfvGXf/yfe4hb7/nkKicYXu9ld6Q3aycZHGbo",
+	"leBuuVnM5oUuALt0aTnDdXRruLxUXtDbBJBrVTrflsY4zNizWXxOanf72XYgn/JC0PHfDJP0JilDdCGQ",
+	"VzrsA0IhAQqAuebyQqQ3IxY3omtpoAmve8trzBsZepoie1BMYH2crnuw1c5Q0ZWqxdaNrLIJtqMtr6ah",
+	"vOQU0IznE0SugBbbhKZlsnETx4lxA66PCazWoUpC4EEkQyFcgn2AZ5mLcXe/3wR4rGm6plG1rvJNkpof",
+	"ikIQIbKOfVX4eBeb4BxRqlIzytcgPvu8YHGSy0ImPBuhxSWGCgbuPPTWQYg0tsi1kqzPaIds6729rw/u",
+	"7ewz946rPOEiVIpmtvvVKLmpy602uZsMx61FxBY3HsUqeCsIvCymYkHBlW5x0bF5OV3AivdXoGWJJHDv",
+	"r52VVaoZvQTDpPnBqt4UuyfTLa7TJye/Z3/cZ35wdP4idq9/7+c//9s/7J7duLO3KztrO/ER2xt8UIdG",
+	"Tma8XZDwJ+Pf/gHvlTscdKXqIcExtjPCCDXg7xumLAZvba5in8FL3+A77WF4//YPNhZbgXXGRkD3mjHM",
+	"1QUneWhVTHz3ciqTKbVo7wglq5wBPOOy5JB2aBuX7mO0im4sH/K1eEHPvItjKxHDQQddi8/WRKGtxIMt",
+	"QN7ohfY84VAv2SQq4Pq0TwSgsaZekI/sK1soS7aP88XGYID2lXrvK0hY0NyS0boRPw7Dn8gL0d4UgGXi",
+	"MR3xiRhNddkWXvbcszF7olNtQ07mMr9pPMeWCYAWzmrZdm/duDSykVSjsYu1Xpb8N3fV3cQdFbw10vON",
+	"wlr92y/s8yugwgLnVbg118Xru1E0YuL97YvCa7x6LduPSTMuvjrxq4nMDSKEycazOaWgjq6FgnTNrh7r",
+	"DQ06N6CLpOJ9IFmsmUiuMZ3XSeZmXDI06rxeFqUJYmDQf3C/30Kirrdwb0iKQOjLtJpYH2joQHG1wyjC",
+	"1xm+wOBFos0tuD+//urrg2srCtyIrm2uwK4heO1AkBzDKkCBpPUh5FmoRGlcfAz4O85FmCLqzIYeVxoP",
+	"e6/doPILEUt7bdopZhth9Ner9dK7fWvUDCKzVMwW7HfsfMC+YOd7P//56ojFtaRn+7v9yQeJx0NVfw/+",
+	"3f/5z1c//zNhZ3198OWXO/sQ7f18CXqkC7YDdS7yyV/+/n94xnOIQEiLiBmRjXcwkFukvQiCoAnDEorb",
+	"LUVEH7L4YJ7R8FL2BSioEOKX9na7e/Dxajfp/Xjei2ppuUP1A4/YecSSiKWvj1h8f4MmfpxELHgtYpPX",
+	"R1CTS5qaKggeNcgFi5hFTbQJcA2tNWHDcjC4J9iAUHakGmck0kbsvPabBVi0MRJjnVsfKp3kLqeHE5ay",
+	"XMI1iIbKfidYCucaEtKOGIbK51K4WirnMHAlJhQTSwXKqAFqeahSOR5jHAYiefciNqmPC0yVM1EAsOGE",
+	"/Y7tuZU4ePkUNjye60thDxb/+c9XP57b9YMFF1fzkeFFScvhH+ru4dKLH7t/+cf/ev7zn696kIyx4q2R",
+	"Ho+NKOjlBRzBFS24bVsMXrceROJplH/hrpNB/BsBkEl7u4sf9+PIO98wtYFmByCMM8FVw39GzXci+4e9",
+	"Q52o4y8OgGLN4f7ex/9iY5SkFExw6Qs74w3dV3jjn7qhBJ9euOHgd38MxoRfPNZl/vKp/yQvRPXppR0o",
+	"fnh0NT8LB7v85Qs73vdR5wXWqWrLQfp+qlnOnRndeZ6O0CvmWYMrlbug7FtEKI7/Y9xwhW1ayrbuC/uP",
+	"6Azb2/+q3Rv2oT6wv07H0jp3UrgiVeDyzdyCt5NzuQ6RkrxVdRgpsE5sChOFMtvmkYb0/I3iDenV7YML",
+	"Cbn9JiflFN9sMzusiH1sy+8bNTwG+GpjIZqTa6hsbgbXpAYuDXzrm7jO/FzP7yAJHIhSWo9TXEJBR0ZM",
+	"KOhVRoo1czj7MHxzqR2YTy3Nj3VjPjuXk1KXZgTvxzeFmAkdTBuc7BXgVTF6PymHCdgeOj2rj+KqyPmc",
+	"ajPDZ3o60wSA7T69hZ+ceIF/a5wbCPRVy/VpD1XXIl+GQAOtSwYWn5rYdYjWoKEKoJV7EYtLZb2QI+fm",
+	"BVZ9hvBmzkFoz17FXBKe5wscMW6t4/hKFyNnU4ZtiDGAh8VEbelAusTGbSO5lx6Tgcd+rfLkngveCTLU",
+	"Wl0KlcsbjGf6vOBSebyQeCxFlom8HQ0EhJ3RltkqzkXWZniDZ8BW6KOKAlAJTpkY6fVgWw0Y6+VIG0hN",
+	"uMJ83CopDZ9tDWdwZdLcdQoS6uGKu9Te28hikWlLCks7KvcF5qc4CAq/qM09CajA8olYT1Ot2LAdTf1r",
+	"cmqvd2W7cqzLaTmPT9iDg/tfMVvmlZGzwSw7Olf58qhADzpTsK6+zfeWHt8mQp4xF9qGdy1dvFUgVI81",
+	"RsrzTNqquJEtzdpS49aWCtk0+Ram+hhebiVbqko6XFm6ls05YeW1xFXjA1asWlf7Nv7bHSt27zwBflNo",
+	"9rbUha2jQrSeSv7cHwxWVsooTXs/v3/16iWjBxADqxZ4fL+GOn4waIXVK2TRBkB9NtV5wQzlOjkq484P",
+	"tNI6VPpiOVDw29MnThdauFCJsDFHu8tcHSLPeiPEXOSH9plDe0LifqepHq0X7/BXN8cgIWSNt612cA5/",
+	"2vCCvHJFUKSr6Nxfmckg8vb3G0f+kHH2n85ePGcv6SXgepoQFHS6iFi8i6gHu2Q+UfiPsJ8SnZUz+1U8",
+	"VHA3T86+Qykupiek/fXQvs5nwj5ubSk+j5sEgvXr7OZ13cpW+fBbCr4X7TmyJ9+x7m97rUywLb8ZC3vY",
+	"h4vFHOMhVMDDXax2wa4qITmvGV4NG2e8uKF8e3UT6PmrTuTm37aqpy5VfxuQkVAWjar1scHy9pi5eHky",
+	"L4kUowARSquq5MrZecbVmxDkM8h4LwSWIek1NI7cFgEnLJz6Tn9AnOTtxwK2rjeeEmG2zSia6bSt5D0c",
+	"up3LXBYipuuJX2iVLWJ2OZUZHb6UFxyyUmDdOC3/+QINyrlINJpTu9iIYVwZiJ2/P7hnoQJPwcS5cwwS",
+	"YdyozlJ1biUy7HgL8xwsxvf2fff5BTZRZd+YVRySp05sNqw71YWbl+mxjE92bOXGAp8k7WaiWaFdzBeW",
+	"cOM3wF61IfrVRl6LzbEci79NGL7vaH34PflEVpw5LAUHhpa2MwR5y+h+5ll4aCxwUOhJOoLzBW2R/qcx",
+	"MrrAUkm+FhBIWpQyUsUeUQKlQ7WqglOPWAyHbCqyNB4qd78rWukStSPbQsRKNZYFRWrpnJlyLnIjUhsX",
+	"xodqo277bhouv8jXkpPJtH7Eg7WhfHc7eXA92ZFvvI3Y48tag/bL07Bd+933vnncwcaZ2454SDUqzRof",
+	"Il0RvB6wn0pfrgit5pOREYlW6Qrf7ZjndCDYuZhKj/ckQQrEgHE9riC1MJ+2HmZVqjcKymi3F8RZW5Dc",
+	"J14tZ1LJgk1EQfYpnGm3VDmoCbDiEVCLqhoY2ksIH8lTyohAJHlvhSyPe7Pc9UttXddSsZ0dR4N3kFCW",
+	"eWYZ515N5rbJLJum+rm+I7fF7de/slcsZzEGVclcWmLXOoy9e4zsAcSqE53n5KnrbVNTqZ7EuLP829KO",
+	"noZabxMoojKXOFTSD8LT9ku0nc8AB1lmNytmu8YHsE12c8Jbr3ZQ/xbrnpA7o8/TWq1bRNLwn0PiGaM0",
+	"Qd/7VO12o9gGEejXxyJv6WV4I1Vaw/rCmVqkr0KMkinIppvTZr+LJ76h4EvknCeuSUTbEhcSDLfG8dTN",
+	"omxqnHgFXi38ZnmWFXzHuBW2lnEL/uM1KdzE6fxINx+f80vYffHbKlXx5UFr6YotQSnwUI5WmICNeLue",
+	"pqLGICCrRSpYHUTiBZmVAgSwGnCNRK0e92beHhiRhdPE8+cuX3ORl85HmPHuVzScfwBssdalVLtpK2h9",
+	"mRWPhUg/AlLnlpWcQ1rZVsaDm9FM5ytiO9fCeL7khkr5GIk1nCxqdQ3QE2O7G1ljK/bZzqveaTDAa7x0",
+	"p75QwJb5QDZcK7XwmBGbe8SMRDQlY3i0LdlkgxLlQXFwDFC+hRLlidykdgytzEP39Bqx7XkN87Ye5bwd",
+	"BKsfW3AJr8GZaAwzYDNWy/EYUhvzF2jw2L9Mn09tE++rL24SX3Ebi/+hYAUBdEKhXV1YH7JJEVfW9V0V",
+	"Seuv3qvWXSkz8Z3UWYXDvAV1s0TVrAEfNeBI0NkFKJNSUZbkdlKk42tNymbPyoqC6I5YQQVBZisrRgyO",
+	"tv8prPbbrpnltgzkNeE1vmJkrSz3+guETftJ+PeiYFHbt0ttXesvLxWQ8ar81i2AoN0onmaTymGuJN+2",
+	"xcJukDsy16YQKVtRf2RLwOzTUlElxpaT6mawIoioAGYE79QWwI1Ohfh7f0eUNjEXG9e8BBj9GS/AadGJ",
+	"qs8nZ98hjbwp5tvmftYqbmDbd7ZAidMrAwE/gOdtHy13WgZhci0GSzTQb96cKwZ0bWLGduBtNaA1v3L+",
+	"nK7OUQnnUC1OVAGyr5fgSuX0wI+Jd79snMHf2FzkDhRlc4vGmlu+6U1q27rNF3Cjaq+3AJdyxyCI24Yj",
+	"rkcTWEIXXLF6N81OugGD/JjUMiR+697y0dIfQtl83lXToreW3C1fQqEgyD+4hOjjwEDaja+jo48tY7q/",
+	"XWCyp51rKGU1oZXHy0fM3jF12zY2N4wmbJWlt7AwLQmy1sSyYbRtxSJvz7KbrkQD3VvF+jcIMVxhQavF",
+	"jW1Te+96Dt6GjxLMbu1y3gjy5hPgDK1i7X5sq1/ZiF8XxQve2gkHOhKo6lR34PK21bC1KQ/r49KPW6NR",
+	"687iCb+gssIIQkGByRgreuNg8psAZNdVu3ZFzVKvDyoHWhVMWY5bSkCF9DU/V9ObV8uR/R+EQLwhqVoR",
+	"dP+K6gI56DB8ChTh+OWLs1ds92JvF/s1uz/J9P1u9aSJIx+e7sLVu9WxoGqDShfgziTIoh46tpaC2SH4",
+	"fipcLe1cjAMAD3IxHrG4EU/swwYWNwx7bzMBw8X+zDCZor8cp4KOJ3R12LpNclO/xi2F0d96HPx6Fbke",
+	"nHEnXq3b4Iu37O5aCuK/CTxP6Py8xnxFi2L9jZrg92jFXXgGtrK5YesW6utGFIPD4tpP6MCuLY+FVPRJ",
+	"LQirKNWGdTS39rvVpetQ4tksD2GbDIfm9QtzHupOxsY1adn97TA8QtHir1E1WHe/WrM7t9IGqHdzM8V8",
+	"Wx22iQ95Z6msZ4me14qm5aUyh1VMJy7NIZxyb/s5rEqqpDOpNjTvYkenpTIu3pO+oA5OqX38Cs0vxldY",
+	"we+OqSMYbwXm1co//+0fHJkhFLTu6X7Pgv2xpy8est9VkGtIQp6++CP7XQWKBhl8EOUE5aAPsZmzh5XX",
+	"tIrvdqW1MJy5i1lzBTi5hsqBdFdR0WOMYI4pONpCSmPzZvcv//g/EaCiaxzaRjwEeno5ZDpyg6pl6zM5",
+	"A8HN2Ojornhb8mzo4v0DBDIXZUdvirR3VC+Bfdh8wdaCPHtYH6YeI7m2IzhyVaNRhLKQIr1DVq1lENwJ",
+	"XoMpX4bgBhaEoOH4UhDYJTJY16X1q8dpQv+dqOM67ESdxvONIsMbHlp/2o6p/eqLb6Cns7T23VPskiBB",
+	"67+c2q7PKHzIW8tvMW38BjCg66pU3IXloOKr11WvWkGsaka0j2BAWFrUa9yrwcPh8n5Ua8KHLjI6+Zdd",
+	"1bkQrIBwmipRD7GXEnIqg7SY86QQuQdPLfh5hJVVSXMBapvwPJd8AhSmKHPVQK/Yd3xtBXzFj8Ph1WCw",
+	"A//9Gv7zDfznBP7zCL7cezwcXn31+PUXrSgWr8CbekOnzg0sAZtrBSuh7wxwvi2kI3i8TSxCP3I7tzQi",
+	"yUXRZ2dTfakY8g44K0dMFizhyurNmGqBhqIN5WvqMXJYTXYi11ZKwi26mXzlFnEzq0p451qiWTRhzELK",
+	"qswyX+cXZ3XEDK6VVc3JbGJjEXmZyoIVOZdZ/0M2sJL0DtaJeaidvC2F/bmtEnh9A1rXPBfqNtkQRLjD",
+	"nb8WFQ76/cY9fMMwjWtqu2UeNXqDqBgLMQ0XUhfCrMhhLjSD1FLY8ZlUaVA8ShpWwJwgpy1IGmFuQSIX",
+	"ZOTq0nOyoW1Z+M6nVW60wC/907UyWBsdR2rAVe5ZIip5qZL2MrGv8lJU5tlLqVJ9ySCTJagJsxcNBgO3",
+	"IgSnm1HFG52lIPjSAwj9DGvcHvR04aLBtnEOhkFk17o62ivJVZsQ1LTyJ98fvNoAwyVzZ+wajbN+Rz4g",
+	"4O2DgtdmsNg3s0ap9irgpuXQkLJbZYam4kKSWairENFsb1UWqL9hN0W0FhZ4bjVeiOvBX2HoPAF9bwOO",
+	"iOuHk4YFCaPmwr5X7v/L8MJb1Qo6yzSmpq/yC/gjyrilS2OdZfrShDFarhHYmxxktoaSVC+MmOlN1ab6",
+	"wM9sL/VvnwR91n8JdKWln878aOo/PNWkWAVE6yNETmybtCKA4rcTTZeJV1ggAHvI/BtUWFga5+Aa+9BR",
+	"lyMZUtOZJERQfNisgPWUahRy6+UHbhYu015LAP07brc+s9NYhySlENvRZnBiyXOlmT+oN3XqbY8tVucx",
+	"7agNDlOyetaFEgd7tnGoSCNMdy2DCo3WNRu1g5D3ycFV4FF1CutnoDbXNnqExzi8HGWJPYc62mDnAd8Z",
+	"H+88fv3T1+93wo8H23zc22/HIvy21cVwzNDJgBapRKceDmQ22X0KvoPS/vvDfD573cRMvLe/Tuf8b3b+",
+	"u9c/7UX3VoznO55LrhLh0WW3QVHA9HoC1SSz3oVtjY1LRX7QRp0NdvbwkEHqEbPootFQme5VD9yyg5//",
+	"PONX3SuoXTGTqvdjskfZUPgRmzEznmU1syK5RIeqZiI4sl1Y9E6TxqzbWuugF3bPvmAJQOCSXa4hjQw2",
+	"xe7f2/BBl/+3nve6LK1BB5tuO9TfVRShkUCJOQoWVVotWFW2GvOWHWmyEfor3c21muTcuHLCG3JSO7qX",
+	"9KL99Bjfp7H7fM1t+d02bO4GpsU7jp7YhNtWWDstUVjjsciFSkQ7LsxvH6JTYPDzn7tjXaoUJVBr8+/t",
+	"2j9uyIKwwevAFz34zKZgixWNuOGwtk+9vYaB+pP5B3h+rbUZ9aX2nQAW++63D98xDtIrgDksqnX4zNgS",
+	"kbV6GhucTriIqyrtOUQUN54brOWtxRdUKTpL0qIFtMCl+8w4pwtL9EwYG/6zka0ukCAstbzebOwOcWOx",
+	"lu5VuLN+0f3FDDKJtnZVh+fr40XqW3eoTy5vVRhnwCzsky6GohFscS4wbxi4KUXytCBbBPryRYPMb3rx",
+	"lja81tDydK4xRyzd6WWWKZUsJIRjdJ+cfEeBVolWhVSlVJOYdU/gWxQgLJ0LRxRyStsQnUL7/uYs0zf5",
+	"xDdTOzBBk4153aCAyU0OUjjtzS009b29RjOod7HF1t4w82BtJUpn1QlrUW5VmXZdeOhz64tvYJg6rP7I",
+	"m+d93BEoCjcsEbK3AtBksEZGvTGj/Kh+w03IvuUQK/w3VMDjhKtUpg4VY4sTlF5II1aEReLwhQszSKZa",
+	"m1WZsGSXW9uMg5pzKOjLjUCxmrD492hFxcxXm9TsZM3a6FTuFk0DiVutUNCz8ddKF4EScRP7qy5EOyIS",
+	"rzrGrswbOZ+TNkNsGgGRjpjAamO6mIr8Upp20E5Tzkb83IzaK4q+++3po3duVUCi3Ul4lpQIn+0Jg1kS",
+	"c9tGd8NVuEn5msbdqJqoTXflOfGnMPLH2u7G6ntjB1hfv6eCm2KHbLDGHifTB6vB1Y+D/v2Y/eXv/3dX",
+	"ocP+TPi3zjF1vgBUNDQWkLjRjLpEC6K1LnSPs5mQKWeiYDzrR+w/9YfqZJrrGS/0JO+zb9hXXx2w7v5g",
+	"sN9j+3v3e/2qJD+NDTrc2wWjwM//TCFQAMq2ZNcIjBZXYKigY854kmtj6K4YVmgoftPFT0N19rDnsxXg",
+	"69o0epEF+ID5+uK14Kg9e3hkEcn4UFXHSo8dMUHPEx48go3xthF7Y62nlxSNz8xQxUuVjfrNUCZfFbdB",
+	"sSi2KzjchIMcWGZMOYOx8XOjsxLxrTKC4CIAZHuRhmrlTWJ8ptEhqQ3WeaJ4WqVrBGimcwGBXRxCsbJx",
+	"a6Fh9igos0Px/wYr//rhG0SQtMsxqr6GkPzM6Oo2WyVtLK8wid1UgWv9pUoyrKuWCtTAFvUO2Xc87y7g",
+	"2PzbP/z8zz//+d3/8+d3P3b3//VfehH713+hZaFaQXrMMkXnBqpuMq1YpuDxCubNCaGwprALQ1XtX8Rk",
+	"IXJcVtwgzly4HMsF8I0gwcAtzL/+C6UhTPWlI98OJz2FbYiVVrbUVK/PALV6eZr2Kg2Vu0t4k6uRwuGW",
+	"BR1rd8TPHtbj4JRGS66lD/SX/byP/y789wv7mb43+K8No6ttyYZyt6diz2kI/vMTdXH2Ni/+tvHd0uf9",
+	"lpf+c+O7pc9LL9W+sFF7/jOW73kxfoazCinvi6pE2VYJVY4qVCeaWZoQWXLiC6zJLGtLpiIN2ZfV3bSQ",
+	"bdSp05w2T2vTEVl/Iap1vZYv1Qqy3d4SHTFu0dkzMS6YLgtW8DeY3uINGne6YI0QN4Ehtz7Mt5UdKCFS",
+	"Q4BslvEVGoy9K5hLl6PnNWfcUj/3ltKFfROi+ydQrWOo8GEaRT0IlsXBrA8ZtU1rhWIVPIzEYKjQ9MNc",
+	"wcZ7h4wDD7TRyJe6ahIYm1aCpWKSCxgzvCtEqmesCxvw4D77ra02YuZcGZgChTshf4Ld+mpg855q6lGg",
+	"Fe23Alg2Dhr64JMyl8XiDOVz3JtzwXORH5fFtMXOAF/rXP7JlsD7Bp+1heAwTMtikfcZBlWZQxZXce3g",
+	"CQoD27FuSy20HZ7A2Pb4iBkhiA5T6rrUCkD5r3bczdqh4CobjkwKBugSOKRKXJ4Wxbzz/j26Xcd6eUoB",
+	"aj3lXZoaMGepkPVn/Fzn1gkRWFE8849AkAIw3trPSyASEbkw4KJ5kSqUcVhV5RRkR6jqjFl2zAj0Aln9",
+	"KSJxEpuK2DzTVFAfkgbDZD6DZ8siu5qI/fHYAZ1Bk1zV4uaGaqg+/5xED9okl2PHC5Lj+p9/zqraqiDY",
+	"VXW5q7mgSwshnsEzDtueS+6yi0BPs/TFsDTnl4rux7w8z6SZipRNSplyjITEtqp1p8WBuRXWzkBpUxOQ",
+	"w+CeK5JwrMhz9uIl3tOhmuciEVju6chbB4GYuLVAwRXC9ikvdy5yo5WDLrbmwz57xJPpUNGGQlfVKldS",
+	"fC7mgheG9EsQPZzpJ8bV/c1v2IlWF0Lhd0O1Q1UCiBBTeiGsj1H8jRgl2Osr6b6FUiD37t17wLoxaWKH",
+	"zJtuYiBhDHr89tUJyFy6LOZl0WeVqQIPMaUVw/AwmSIXDDwLjGQL04cRUWEc+tHWj3zy6NGjna/uHzBS",
+	"/Eyfhm2jVKlk0XP+HBPZqObk4giGY8PsCEcpwJaXpoAAA/Ll4Y815507UxFQdlZXXLFquI/iy7Uueghq",
+	"Bppo7BQRzgzMWokMZ2StaoyInrEJpg7vmFbfQCWsFtZ6SNVZEX2dMWfB8U3BIiWZBqWdA5fNsogZyvwo",
+	"SKWA9Ut4kUxhF9WCeoO2CowBzmG8RqjU0ELgwUl1QrTHrxkRrHNxxJIMy4hCKGxJDZlCZhmTE6Vz4SZT",
+	"TMXClRKHWUYM0RkZKCw5s6nFhvE0tW/Q1uMJ1OOA/JnIES4T2YtlIqckIlmiBCdYCTyB1Xk7ZHvAZr88",
+	"YMdnJ0+esEwUhchNxFI5kQW9HfeB3o/gP4fwn504oilxqqxidQB6Fc4Xvsu6JGWwuDreINp/qyQmO0LL",
+	"NjYeWgvC43nu84vdhQR+Bo1Y3HKcE7KVoSJSGO9e7MUs16ASkgiyBQ88tlBicEmkQK4/VC7bhvo5hIG8",
+	"ow/sHUos79gk57DL74bq3c7Ojv8/PBiyU/Yu3Cv2DvHAiGXBRGi77RZFFrcffoQ7FdHDNdT2SpUFL8Iu",
+	"+gxspyHXZu/Y0yfPzjAmaOKKpb2j9ombe54U8KKoUfUscr5TlNGFsAlWjTLJ1H1dRmDvgJOZgo/Hrd0S",
+	"d6tYmznyuIg+auuI2XSx0BKWi0TnaW1NjB0BCSXsHcM/pCmsBvuOhFUkqdB96RgQjQK3H9sYqkc1WYZl",
+	"0hTE0Okg2PLR6UwSuyUFHktxwHUdqhbR55Bxe8LAugBX5vPPgcxoJT7/3NoWZmiBSWdkznQzwXp1MASR",
+	"MnEForksyBqTIxGVhYUkMJ6kwdOO6WeiAO4EHPrFXKjjl0+YkyQdHiWSMExdoytUzRwodiVkHrIfXgMG",
+	"gGvnXn9ALmdjLwUtFBqL4Ha8gJf2cXXhlScPgakqkRTWxmyAWB+7QLyIzXgGDJNKGBDNx1Nwod8Iu0Ew",
+	"ooPB3hGxLOm+tZwGhDq7UjQgfPpen8W7U8GzYvonoF27WFiC/pyJIpeJsanSu3ouFJ/L/oLPsnioUPZQ",
+	"2nbSjd3C4UL0HGF6hFYnR4WoZBxspGJLRcG6MW4VHdhd++0XAAMYO/z8oYpteSRnBGmU7oqxBxNbOaSt",
+	"ktchMAlb2QgKGdG3ID7BiL58MNhbW/UIAsOAHse7/sbt7u/Ws81ZNx52hp3YFXS+nOqM3u8dUe8nZ9+x",
+	"RGQZdLtxHSUoAhlbpE8IukvZfLowWEQIWkCrEgxtKngqcJnx672eC2ezHX2160S92A6nCvaF8VxXoMk1",
+	"97YU+eIQFUsYG9QqO5QpMb+YBnH4JBWzuS6EShY7fxALzPAkr4WVk2bSgHyrrJIbLj02RAK3NM6TkBNf",
+	"tUDd8a49as/c9WBmoQp+FdlCcaA9WR5P3DYIsQQ+ejAYHNHhIcIFlUhAAtqxrZ2Xrp4W41RgS4+91COh",
+	"AD5XTrgITZVO6BkquHMgf/hrS09E0J5AjBBZrRF7IxYoCx7s7wPfvT8YkPoCdGOohhRpDc5KPOjDDpHn",
+	"qQDe5irCxUfWQgkC4gQGUmg/ZpGD8RvLeCO1h86sQE2Rar72nDQ1KcOrVCQ8OlmgXl4OJOJw+bQSKMb6",
+	"qBsU/JBqv8EoXFR6M5kICwNCeVgdkF1zKQqeL4IacaGSSxGpxkJfQTChhYcDGtU57NzrD/r3KLZ0ivYA",
+	"R+Xg74loCwLFwkWG7UPeiC9iM891IoxBopXJC9Fnz1F8cpSv73ElIVwg7Rx2/kYUv7ddNfyq+4OBraJb",
+	"uHIPAcX7OwtVQgf1OtMUdUEWgcY8cJiwGvcHg1XN+HERcoviGVLqmjGlc/jDa3RXQfEV8CXJC4G1Y6JO",
+	"gRg8P1QzN1RWyPGMlYv8Mtdw/kVpKBlUXM0dID/pg831PaJHsEwQMk8Qb4H7FFDQFrfIYQIaVuSlKehM",
+	"Le3JMzuya/cExrU7z7hs7EYzFmpp4W0Pd7H0wbLN/DxWbkLIqVfuBHienbDidbWASoAH4ryUINWiRXCD",
+	"Y2+b2+7Yu0FusdDh0EHOcsOP2H8+fvb0Ltb/VajRrlt6Ep82pDHWu+WLq3H7q7MBWZYF/LLMc5zg/cG9",
+	"oarc6c1dYfFMpwIFj2sLuYFAWFVyYy4S79CWOOK5PQqp80SgtuYHiSPp1qu7sVIVMqtCdqBlAyR0ptEU",
+	"Qsw8YJ9DpXQhE2Gsa0pkY6ythcfDxIF2USvXFjE5BkNEZF1vxVTIHMowrbj7p7Qrd0iOg2Juy+cVuwcm",
+	"jOt54/MJb927/q0zWtpvFb/gkiIb1h3tauRrjrWHT1t5sj//HC3lh59/3jSOL+m9OnfqGwoWhNfCFPkt",
+	"xjIHeQlx8ylaNw4SU2I0Illx3oo+ip0vhiqWafhjnz2WGVpLEj07l8q6yo+fPzxiMRA0vCNS2fgtUnEK",
+	"HVv8FfguYue6mAK/qY2gz/4gFkZgWRCprPEEYl6suEB1W4YKqoaApT8oARJjiRH3d+W7R8A9Gu5R4wW4",
+	"phjZolVV9wyaBumQHoKJ6Dl/C+lQWjUNlamghBado7+ePMszntoFQVLiOo9IJxy03SIIbDxx0M1eXzCY",
+	"Ki9V57CD2oDL2T+sZ75udofCiLT3UXuzVQ7t7bXpcbJur0mfNbVZk7UUuFVtBsjPGzUaAEo3L+sjnmcS",
+	"blvtZEfVfcBcs5YxwM2pDWCTAMzl/gGdarl3cXVN74W+hb5fcnBIyj+t7AUV2lpHPmv2/iBwVe7XPJWt",
+	"pfbaZK76/dbjGtmgq71iYL6O0MaHyqBY8/oO+R6eXAx6buF7gH0NE4JZEg9A3newCe/7hqcukBhf2bv+",
+	"lW8VtyZtkdJLG3DLxzo/l2kqMGrzYP/B9W+80voZVws7OvMLcXPPv08ooUca8C4GPNzy69cQa9MwuHaw",
+	"8OMmyGx15o/YqXcgAVDVOrRBjCX4+4hLebesVomIKn5pIVbhVqQUQUbfjKxBgBBdMbkfjcC5cC2tEA9x",
+	"CZfZWtvGVI/Q0bfound7v1bpQFRc8Vd+pQYH17/xXBePMSHor/QOHjvwaziisjAU3GBjJNCH5QA97vp2",
+	"7qLDaKM7uv5OOnMfuJJESrUQbdROUNvZKqp5qSIHvIICvHWqBN4rNKDN50KRTrruJh7jFH6V1xGH9lSv",
+	"tErgMplPV/JXcCWDo4fuu8QSeXcD7WVadQO3uHK+ui0et7k2H3TxKBvRMA4aMY06orBhH08c+Blc3qqP",
+	"69a5nGA2kwswKaaOVVaImJlU5DVkEk3zsWtmpMfgE4J3fEOej7pcRPSmFOCVkMoJHn12altvDMPDmcIb",
+	"/hNorwh85AKGbHRkV1iyg20NFWYcYB6gVsIbhgrAaLc+sPa6zT1LgPzyWKdRPCfzwMgu/pE1bVmfvkNL",
+	"KCFGz6qaQ4Wlv7nz8bsYMVlE3vniZvuZsU+R+cwVeGfcDFVVar7PXjiwKmvXs+SUzumUS8USrgg5D5M/",
+	"WPdg8CAaKnRAxTbj1ozs29YFdopAIt2D/f2IHJ/nWKLcy0mVc9SzKWjvyEeyDRXB9gPw7bO9AaRp7O/3",
+	"Imt3CALYICjN5gkDse+hSzVG79bIbl18SGOgbcVoKeKE+K3fR7RdKOEySzxSPjZoD4sZGTR+w7YpcQnR",
+	"AgXLBDeUF2XfsVFZ9rDxDL5eUDuQY+N+GY1zjoEc1MxMm4LtQ6CqHldmS55XlwV8kL5ZOGoZnNL6JNwQ",
+	"El2qAuvIalU11bOjkIoyfcwIXF/hNGqhk8GDMS0fjqFrd4kZeRW5LeoRmJyH1aWewGw1wsDbkVCpGSkh",
+	"UovxHR/aycBwa3cNFgBeZNaJbPGD3QmfyskUPtN+Kp7nENkAv2BHMBd8Gzo8QhMUNGIjjWgsdgQRRrYB",
+	"4y5sOrMLsbicLigzYiKUyDmGPcX2rcqghYvca5MfiHI+ctT4AyUIZGPf6HRxa8KDH5ln+fUIe1+Kuya8",
+	"7H0cXSIEQCDfPfb/VCcrsmZf8mIa1gOmgsNxgzkiWE59itE6V8+/M8FpsIHgdKLVOLNgUQd7G4zpJV9k",
+	"mqevtH4KmaP03v1NFsCUcyrD8kykkr9aEFzowf7+Ji9bTzjIWo9UAZ6Ev1LR8FEzZA6pHIpYWDKFJK+g",
+	"pKQTGd8mtyEuzjNd9OdqspGSdgNDCp8JDCBEZwN2Zi4msZ3Zy+d/w+QMjIxrFLCXmS5ePv+bu1TBcAy7",
+	"dhVaTLrnUnEyZ23iDMZZflK6fvGbBQcn0LYiRqfozo0e7pTfwZU6q4KJvRjoU6BmPH8DmVcuocWjKEYu",
+	"UXosMWUD8m1VSgoDr8ojzLkSGTsXmb5EhYWupo+t4hQjg9FPQ6X4DIVMat9n4gRZPtC69RJdd73PvvsI",
+	"19tcTL64ulF0x6cL/Su90GfffZwLXQXcb2ZTqV3q5h1+spRSBnMq56zQANI2qPI/glw2O2FU9SjKhFfa",
+	"IQUy022ubjlzpZcYL1hcfR9X2htqV07X6/XZUhRmn72s5k6pOc3sNK4WLoULPfpT5OxjKn7FCxv4Dg2C",
+	"QxkWwxKFoxrO21DBA8Kg4kakyVY8hJBTFw1KyU9YG0aXhZGpqKW/i3SoSAPUOREyxsna3WehVZxSnTD3",
+	"vcr5s/1gxOtQHQwerNbqgkX51el11di2UuwGdzIA6mKVN9basOY+oSai0C+bW5anIu93Pulgn3SwO/da",
+	"hwkTmK7n8nsD9hJygQ15zBqeYvnOLZjon2nEybbkDTN/m4ZlVmgW23Qty5AcznZMQB/kWiMbWioSaz+x",
+	"9RNJIYWWRGt1EHaMTaONvKq8ixDSROoxApQAaMkIxytTGpiIPVHWSvT67LjGUAgWP9NqIvLlmWGM2IND",
+	"lGPhG/hijHimQ3WKZXlM6CLEJHGlL4l5mjYST7XabsMLf/vEncb2CxH2lRY7GhXAgXwi1p+I9Z37Uptp",
+	"p3fqTl3CtrxljZ4iG8JeqjCHFgUAI5CLeFVM7HcNmMxfYdDCEj7pCqW7tvCftO9f/t59157V3hrOsMY2",
+	"vaEaHm2iZtdAcFbfM/YkSOiHZodqRYq+Rcc750UypWRFKNkTdtQ78nnyQzXjLigJfawOCxZu6RSEpm5j",
+	"UNY1jhktNf8ugAdUJVbxJdadCY6mgdhvEsBx6KHyReotLMNsznOBkg2lodbzfw99Ms1QIQg8ol072Hds",
+	"4rcPr4eHhzhIBNM0qIwPFeKY/+W//K8Nh3EFttMPF3lU6Ezk3GJpxxEJiEPlTBE//9P+gP3WlfVh356x",
+	"Ry+P2dn3O18ffMmeYevs68Fg8DDEAqrv49FybAANC3HycpniGkUuTmyoatA3+LWLJXBxY8dViikurUOp",
+	"p/wHJ6aCZGtwa49dHYXa+YJXCakwxHqvIzcwF30+VLyAw0vRD0DsbR4Tx+XHOjhh4zq3LiJs9wjxMe1z",
+	"FJCAWDvGQii6XmzzDjGJ7L1hu9FQIaIIivm5JnQj56PHJl0hf54L7KnIuTIUzmCPOabr0sIdDB4wazJ2",
+	"NYHIxuPytEmCD2v/QD4X/jFSuhi53+Je5HWdKogFbhxXzMc+eX9Z1UgYoVI10bAG2Wen3IzGEkJZIPX5",
+	"EEE/wzW3OEbhbgZBP9Bn7ejjWo+Cc4uABpxCZVaYmL6rg5v/utSQNoDtjxw+0AaZv4Ek4S4/02UBF/2T",
+	"yvJJZbl70emUZATejgxUAQNtKEGFNe2vUWUCKKPdn6oP752OY0niHXn/AysO3nSK8gSy2fATOswKXhDH",
+	"cx6KoVL6snfoUYCFLwvn+VhBtn4kyPgudZf7cMah6ipdbMIsSJ6Chx23IV8qJYPajEWKHEdLWkTlknjh",
+	"UMYDZwLO6pLDN7RADgvdOI8LMyKMAaWJjaQaIUgTAl0ptLiZMpk2OZ4ZKmLGOktFzrQSffZ9A6CY2od4",
+	"Q+JqfCJGU13mFkMnEGCkse0ghjItIO1ERLXrCHoPB9ZnB4MDh2KIcaO5QAgNeBAN+Jc6T806l+8T9VhT",
+	"pZTt2Folxneuz8hcHea1TTrlMjeZaUrud9iBR2hOJP/UuRGqWJUwx4vt8wXvPJnHbcW6nJ5q6z9p4b84",
+	"K1neFbiq3B7LW1XBr2Mht+sWPzYsfvni7BVb432PI1JXQptYtQ5jyipfYi6xJQrxEnuBq4uYuEMV/80j",
+	"6npDjhn3LIYbrj5A93kQMnSLJG/c8FLT6lh/rpvjR1fGwVD5rApykazWESp6+CEO6ZCq3pG+0DbQT97p",
+	"T9rDJ+1hE5L/x5KDTLJYQ/tu1U1tsTY30gkaAn9GUAphHhiJqQ5m7nyBGUCr/BfPbNd3SACoi3WeBzv/",
+	"T+gAt++6y7IA8bh+VsJQC/vMyvO7jZMgFDHQTgrnjyU2r9Gf1L0+e6lNQUg+lCIGf+PDBJkMcW5VRUiy",
+	"1svCLJ151zRpjlfBL939wR7kXwkEPMmrqWM6YhSYWF01lioowzdC5ViGKkjBrIYurnhS2Gy+xrg+M8ze",
+	"H6IjQ+UGqqxwwjHMg0ImwBi6Pxhg5mIuDFmvfV0LQMAPDP1UvCFAQ6gqeJoQZsvb0s1UX+IUoIgIA/Pz",
+	"sTUAVIjtpZJvS1p7qUDAJaUWwkXWmE2fOfScuxBjqPFfSHCxM2uhWaSzJjxzxpXGzh/5HUYcCzKWInW7",
+	"TYPs6vHRtbP7p/MPS+5yjCQOONXuT3Bs/r1ld30SxX6FgYJ4eTw1iirvWyjyUMWobZlZXfqyZ/oWhLDI",
+	"FXXXHqYmTLKPVyOUEiVtg1cDr11l2cJ/7sbidszMXCRgMw/IWUDjNrC7Balz1Ygq3Ky9g68Ovr735cFX",
+	"18Bnvf5FaHslj34yvv3y1/+Fcrtx8/ttda/tPS7tkWPIzi3dqVAhKkGSfPQe0SCo2x0hEARhxDCpyIeP",
+	"JRPRtoEg+m/BzFWH0nmps8wDfwxVDSuuFWESy6QAFjfe0sMqzAVRMEAerr+D2NaX4F8womBd9NlavHXo",
+	"w5a/tDqw0TmDZl29sRhc9zOdi9i5KARiSsJXFg+HXYpcOEwGluiZreIwVI8x+AQEpfqIjBCufho24cVs",
+	"rRJx6JrFci1Up5XAGZDm5uRWETIPAySM7RdtiJzmBVuRU/CGwJoE1JdzOvmBIunL+776BT0mDSLiFkK5",
+	"roPuqBGEYAcn1SEGQaHIDygeGEPiko4w2KlPQiI4+ez3fZ5CjEZMP9goDLIY+xCLvotyilZ7Ou2T4a9x",
+	"D+FAWz1y/gX/UzgIROkvQmSVCvIEhg6n3JWD9w+HjkCtqLJFqy3iFBt6hJu7zAZvAqV4ZDlVNRS4Ae7R",
+	"sRDpKh6Gd2h7rMVbhZvcGwxWl8b72ByTNuexaI/6CKEe/zpAsP4aZWFiLXBsYZ3r4Wy1WGz65mbGyLzc",
+	"2LsU1HBaSpvWubXIALnrBhUGKxgqS+koCGCMMUJKVNUGgUKRjaKBevWZB0QPRG7HTysafMg42x/sgfef",
+	"KxNUOKoRdww5LJVNn1FB4TiqLAMVQGzkJI2sql1iDUI6p3hE1vV12iPECfJbywQU5otYoTXU5xwqfMj0",
+	"yDsFlc/IRxW5WmE2pjFM7KmnTB6ynF8OVcoLXgF0FdNcXyoIglhABG5QGYd1D66uetSLNz8FqFHnYqEt",
+	"0g/dd7L6HAaLzmalcXXvCNLQFLSm1T5V+FlHzowES+Jz1R3MV8bPRYZwgDw3yNOHqruEp2TYRFP5nSAe",
+	"lw5LcWnrqRpXII6K5/OhqoXiHrlLItOajSuoZWkrFf2GBaVqhupMgGizVL2m0GwGhrdcFJihb/hYECA4",
+	"to5XzEXcDBWVRkJJwJBgIWY4fACAooI3DgJq/4BhoAiFhVpT2mdosVMTkc9zSRIHZ2e/P97Zv//lYVgw",
+	"h/AX/eIzDtwvN4TVNlRCJdpnN7AuVtaWBZZlTSgodCbg2FvZya7ojBeFyHtH1NFQQc2isCPkY1XpIOOx",
+	"onJ+SZWVzheFoKJ8Z3wmoLZN5MDO/aQiknLdlH1ZrpTO3uefO2y1oWL+Qn3+OVWnKcpcVfPaH+w1QNVx",
+	"FCikOlOXrTGJj9W291TMM77AbvNSxGDBY0YkcCtgRSs3cn06zjxdhHM6xPI94YNBBYb6dD0BAL9SBvWN",
+	"ad62awxnggHDHthocytsuhYKORMYT+vQ8HOcCQVe65whet3B4AGCiNG86zUbJGgqFb7WWCpppjAeaBln",
+	"cVx1BmfZEicgKdDBfaAs/nWwW6Pm80Ys/NWCo9ONsbBKYi7iHtRrUota1T+o8pIX8GSffY+jPCGpZQcs",
+	"X4fMv1wh9A2VrXRl60VSGLnTdZaOZ0x0DETsqmOs3VsrMNB1DJMoTeyqy8SsS2WnedY7sogAcVOcim3Q",
+	"d9Atks1z4QTR7sFg0POGIzyg0rBvXz3e+RqKJ2VE+vDq7NB1BJAReIaKY6Y9CoQ62Pt6MFRdO3VIiziH",
+	"OWsPEhkPO/ERe/oYtujk9OljKgYmVAqwA0+lwqwCbeyBHCpfYBL6in8TO+wB2h5YCvjCvJHzuUiPbH3p",
+	"DNsJfujTvOiQU3EB7Nfqj7RhfXaCdc2M904SiqNaEAWyxSSp+BnWRqQdYe8qvQYC5N95EUhfLlWZ9JUm",
+	"30iFxR4XAuocxq6FGD/g+7GrjuiiVtzD9ougIOiKL/F1ZEjVy/ix/irp1PR0o2Sce8slidR+jthf/sv/",
+	"xgaNFnwVN/8yBg4GVZ/tYVr9w1D5RYDCYdh/1UvFPBszdekwSy+4H2yl74jKiQo2YF16hESxvR7Vktxh",
+	"LwIEx7nIYScBStQVWbe1TueofTLEHKxReIQI9NuG99XuQihxkj8ML6KjkIIX9Ubq29FzFlz4vdlDsF5d",
+	"+tsEpeqwm0YPwYr1+uxUX1pOa8ugAb/20g+0hL8i6cXgM7oHYb/SVJeCDLJqgbcARQR6sFYIuTQC6tRC",
+	"T6lI5IxnhL+KlekcXUMirJBKxXv9+2LnXtyj/CcGdK00XKXGgTdqLFbynD8HgvpEjX2IK8vkGxEWqSXo",
+	"MSqt61cEQUMw/UsqFGIsp8GqiPUSJkBkFwRWa2CSnxkGd9pTVjxZ9LoKi2OmpV3S1C0hkRruqmpWa0i/",
+	"21rNsI5WDq/YOykGIPv46sRcBTTNOiaA2BF8JibP40MHgwdfkiwU1NSzQK1zW2Vy4yKQdDzan497/szg",
+	"GhPqOKwxSom0jl1IIEPUGy9mU814S1iJbIF9iPkoLHgFShHibyZivgmnwTlkK2D0yNPIfW0RVqEpqJYB",
+	"b6DGgheZwFRJTLK1GUFhsfYrYbVH3yIWfyN0Pq12iJqQZ/HIY5byBUpC55oirFFlIudLUHPqM4ONUmGc",
+	"PIgBgCYsZi5ab20dRncW3JL3+/3Y7RvZBK9wFQ6HKo7jofqNlWWo44Dqzqe60CgV7OyxrmWtyyy0N1Rw",
+	"vCOnNZFCWecHjvRHniZEjsIMldvKSEl4XkRP96JB/3406A/2BvtRtPaJwYOv25/Yj/b6A3hif3C//Yl7",
+	"0T49cbC3h0/Q6XG/R/jy/UH0/c5gcLC/4oG9e/fogXvRvl3QFYEHp+X2aVqBxP8Hsegsm+vgZOBJ82Ig",
+	"sgzCk3aaMMZTrTDnfWAxoW1GExytikOvGtct1GPadGw+KwLNKrxKHalC+FeNMpDEb6HUTzVEL7nD6DQw",
+	"n0ZOzKoBOel/40V74V54f2eIJGUQyRt1nGJUb2B5IZDzUwH+lEgkzHkm1VOhJsU0NCiH2HwfL7/wtLwu",
+	"rTAvq2xCl5WU+9IxXZA3La3OrTY/VEs2nIi8UfYlyxo8XL3dMOuiCGJl2mwFywsdo/HAlXaUxuk9tje3",
+	"dug6VKyKSsNOG8YLUKA3Ca851zoTXOFh2CyiB6MnSofWnJfq3yVW86donl8hnqQ2BeP+Io9lEVzm0INR",
+	"roulDrMxW5wXW5SpWu3AcPTGOZ65MwAe4oid0G/LRzSqBpDZ1ftn6LuafzoXiZCY0FgnaKsKmN5A1jkt",
+	"1V0jy8CwVtPqT/Ezv4bKVNYfQIf3Vq/YbQfW0CP1IizOvlK/PTbuAixFvtrKUHmgVFsvzomhzoplvJdt",
+	"Oa0jKCZnwStsGX2Ze59gWAUH4qfboidcGR5qdSJBRkGN0g7ChS7WSsnUSyj4TGGwpNtU4KCSTBBN4e3r",
+	"p2GU0VA9FDnQlia8jaM0fzyJQk9EmdUSxs1QgYUISFbEGolxWEXGhjT5iiJDtdcPermsDXFl5vchi92k",
+	"oOLQfthEosssZTUna+Pxe80ePZCJVDZIpvHGQfiG9WDAYsyAchc6XzgHK0e3i7c8Ydp5o637/TAgsj3u",
+	"xiMT1dLlraHCngYC7wl8DzSusLeoCUWDr9e67Hr04mWkmVyQU0ZkhHiEdk00cgUANkP1Zbg4tRz6QxbD",
+	"EuCW8Qwm/1X4bJCaz7pe9oZzEZFfyWfn09SgVBBj7gwBvapF1vnQOTzITAZBWYDK5BJGLS2JVzPLUx8T",
+	"8WvkmW50q1gn/fyJff7y7POsjhhFEZ+lutVYG+Kl9hJ/eOANtRPQHyQGoTkG2of7yhuoa45smMq4B75C",
+	"DHmUhr2lpEhpaZpKRJOP1kqZWTQr5yyrLELdiruDoX5s/dRBYpfnFlWYobUwWz26KmBWRd8W/uZ81gy7",
+	"HaqVwUFsfWwQrGidREuzJFhc8mq5XcAhcdhCzoQLl/T+fif6I74bslphrO9oFUaedYAMVdBr1wgRkMSm",
+	"UAaOJncW7IZXIcSwDbIwIhsji4BcMhQSPQep+H6prg0TsiD5FmyMyp+KLLXRQ9AXItR77DbrWrNH48g7",
+	"rJhMazFBYZQOegugrQjkPOCJFp3GMT9Z+ADjKTdho5aVu6kRJx6qanar7ct2AT+Ijdy+AdCO6heCAbue",
+	"f3l5hI6KzGtFEW0Yzac8/k/mprvXftPUn8ZCB4anty7Bv5iK2TbcfI1ebDva/cn75N7fsmY8roISiFxG",
+	"jCe5NliAme6bS2O2ac4RqrRLivMRu4Z5+K4sI7W1QlDrlWmFzEnjIhgVxwAIYLIKVlghpRMVWymoL5MV",
+	"QHypTX2JsdlfvS+nnjPnR3Q7iXN3qSPU1+aTmvCrryjYvKW8cVpvTWHAkOINtYSwApIxJZasyLlKwSgE",
+	"zbCuDz/e2/+ancvC9Kq7BLYrRRHNxlZTNiLJRWGh6dC9VTm0VLY48lEWIneh5vA9ioQ2bHmoptxMkVSR",
+	"OS3TExDeVothr2CodwQvgG3/QnIU9n2NwxO3KarUHbsBAOagUET+tV/+T0LO3RMfvNuM02EJCI0lFRsm",
+	"ydLT3nWWikwUYmP6ciou9BsbsYUtHdn4qSrabbDXqwzSFqXFAnshGslQBaF7TpXLsd3U0iuSM9pIxUMc",
+	"riMV1+fPf4AQ8O23Tx62sv+D5dWiZfmUSP6rAASGrfjwa5ILlZq7BO81Fs9iBWBvPTk88NBgob6hAju5",
+	"P/8B7mJsMj2HCFEMHTvnRoRx+Vj4AHqxEsvZQ2yp8hLF7o24MvhXw4XnLqVK9WXV4f4AEs2BVeY6c6Go",
+	"RiLO7c//tM/OHrLuJc+VVBPKtPj5n+7hl2Sf60VURx/sRmdTcTnleQEOgrxg3SdnL9hXX3812Nm30/le",
+	"mGKC/nc0U+3t7Juq8Yjt7dyDCO39nX0TsdOdAxOxg509Upj2BlesS96jHtonBCwkJzditbCm7tkz5DHD",
+	"SKIQvfiogahPJo9MejVlqGLfwSEb88wQ7vCF1BmZ/QiPCRbLQ/YHCFVgyrzQGZoPMU1mLC5dnDEkxTU3",
+	"p5iK3NrA/KZDoCrtB5ozVZllFoaZupSmWoQ+O6YYXraH4bvVrMCmydMjBiFPKqHscAcAoMITgc4nRAPo",
+	"Kp5jkHrh1gIYAp5JvFbMMvQokA8xkisR0XKlCX2phuqPJwwZeVrmwlBoRq3GRMRyMSkzeKet3ES7aoqj",
+	"WcFH1oVV3g4cy8cAWW7rw89241hHXKeX/rWWCMxHGOEG9CM0ooNVAi38FyvDaOFg3EIE6FNetPQurq7p",
+	"vdC30Pfv9SV4lxfNOxk18DjqBDSiBNMiINKrRul+bwcP2A+xA/Zr0AH7Hxk6gO7TKmuxyCUsClxdN6PI",
+	"py6otCKNnyAFbl8sepjLceEkDpt57y40FvFBH5YVMxrMHDanznnvqjQ0SV13WeYdtW3opRZoQP3GjcDc",
+	"ii1ELM35JbnOKlkHpZTDUHawybRkhCVWhskcgtFphy9IJhqqQBSidfYRQa41FD3oVgi0aWfCVqKnuEPM",
+	"rs+Ad5+2CCMgruCo1zG/lSXiP/HATzzw/8c8UM74ROyai8kXV7OszgBbcieWmR2Shk9s7C7KSVekl8J0",
+	"kHZHjKjYLXMl6FskZQ5WQ6CK54LnIj8ui2nn8IfX71/7Dpv34UmQg11S3eugSFkQ8tGtlHHT61fnHd5q",
+	"SVt7TEg0YVvuopEHPghuBC5qgibpwZZGn6gLkRvBKnzzoE53PUE9bK96vK3RPx676jwwlrCmdR0/Uly2",
+	"vVyFINXBjyIfaBDE/Xi+mVS4SbVerHttqZv2uptRFZdUYZ00y7X41t8mLQ0T5jICB1sMQy9ayJxV8M5s",
+	"rjOZSBEuq32hrdWXT8iqFT5OX7Q8/RT8OsJ4ICb8cyaKXCZuWtKwVCc+L66WCkfb+vr9/zcA",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
