@@ -17,7 +17,7 @@ const (
 	fitScriptFile = "testdata/gen/bench_statsmodels.py"
 	// fit4PLScriptFile times scipy's curve_fit for the fit_4pl line.
 	fit4PLScriptFile = "testdata/gen/bench_scipy_4pl.py"
-	python        = "/usr/bin/python3"
+	python           = "/usr/bin/python3"
 )
 
 var (
