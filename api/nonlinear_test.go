@@ -7,6 +7,7 @@ import (
 	"net/http"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"curvekeeper/api/oapi"
@@ -97,7 +98,7 @@ func TestFourPLEndToEnd(t *testing.T) {
 	if res := got.Results[0]; res.Concentration != nil || len(res.Flags) == 0 || res.Flags[0] != "above_asymptote" {
 		t.Errorf("above the asymptote: %+v", res)
 	}
-	if p := e.get(t, e.admin, "/v1/curves/"+id+"/plot.svg"); p.status != http.StatusOK {
-		t.Errorf("plot: %d %s", p.status, p.body)
+	if p := e.get(t, e.admin, "/v1/curves/"+id+"/plot.svg"); p.status != http.StatusOK || !strings.Contains(string(p.body), "four-parameter logistic") {
+		t.Errorf("plot: %d %.300s", p.status, p.body)
 	}
 }

@@ -10,7 +10,7 @@ import "math"
 // and the interval by inverting the prediction band of the mean of m
 // readings: every x ≥ 0 with |f(x) − ȳ0| ≤ t(1 − α/2; DF)·√(s²/(m·w0(x)) +
 // ∇βf(x)ᵀ·Cov·∇βf(x)), w0(x) the weight an unknown at x gets. The band is
-// walked outwards from x̂0 in steps of 2 % in x, up to 10⁶ times the
+// walked outwards from x̂0 in steps of half the delta-method half-width (2 % to 100 % of x̂0), up to 10⁶ times the
 // range's ends, and each crossing is refined by bisection; a band that
 // does not close above leaves the upper bound open (Interval.HighOpen,
 // +∞), one that does not close below bounds it at 0 (no negative
@@ -58,8 +58,14 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 		pr.Flags = append(pr.Flags, FlagUnbounded)
 		return nil
 	}
-	lo := r.bandEdge(inside, x0, -1)
-	hi := r.bandEdge(inside, x0, +1)
+	// Steps of about half the delta-method half-width (at least 2 %)
+	// reach the band's edges in a few evaluations.
+	step := 1.02
+	if rel := t * se / x0; Finite(rel) {
+		step = 1 + min(max(0.5*rel, 0.02), 1)
+	}
+	lo := r.bandEdge(inside, x0, -1, step)
+	hi := r.bandEdge(inside, x0, +1, step)
 	pr.Interval.Low = lo * pr.Dilution
 	if math.IsInf(hi, 1) {
 		pr.Interval.HighOpen = true
@@ -72,9 +78,10 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 }
 
 // bandEdge walks from x0 (inside the band) in direction dir (−1 down, +1
-// up) and returns the last x inside, refined by 60 bisections in log x;
-// +Inf going up and 0 going down when the band never closes.
-func (r *Report) bandEdge(inside func(float64) bool, x0 float64, dir int) float64 {
+// up) by factors of step and returns the last x inside, refined by
+// bisection in log x to 1e-13 relative; +Inf going up and 0 going down
+// when the band never closes.
+func (r *Report) bandEdge(inside func(float64) bool, x0 float64, dir int, step float64) float64 {
 	lim := r.Range.High * 1e6
 	if dir < 0 {
 		lim = r.Range.Low * 1e-6
@@ -83,8 +90,8 @@ func (r *Report) bandEdge(inside func(float64) bool, x0 float64, dir int) float6
 		}
 	}
 	in, x := x0, x0
-	f := math.Pow(1.02, float64(dir))
-	for range 2000 {
+	f := math.Pow(step, float64(dir))
+	for range 4000 {
 		x *= f
 		if (dir > 0 && x > lim) || (dir < 0 && x < lim) {
 			if dir > 0 {
@@ -102,7 +109,10 @@ func (r *Report) bandEdge(inside func(float64) bool, x0 float64, dir int) float6
 		in = x
 	}
 	out := x
-	for range 60 {
+	for range 200 {
+		if out > 0 && math.Abs(out-in) <= 1e-13*in {
+			break
+		}
 		var mid float64
 		if out == 0 {
 			mid = in / 2

@@ -396,6 +396,27 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 		r.Points[i].Weight = wk
 		r.Points[i].WeightedResidual = math.Sqrt(wk) * r.Points[i].Residual
 	}
+	if ok && fit.Covariance != nil && fit.ResidualSD > 0 {
+		// Leverage hᵢ = wᵢ·gᵢᵀ(JᵀWJ)⁻¹gᵢ (the hat matrix of the linearised
+		// model at the solution, Cov = s²(JᵀWJ)⁻¹) and the internally
+		// studentised residual √wᵢ·rᵢ/(s·√(1 − hᵢ)), as for the line.
+		g := make([]float64, len(fit.Coefficients))
+		s2 := fit.ResidualSD * fit.ResidualSD
+		for _, i := range pidx {
+			pr := &r.Points[i]
+			c.Eval(pr.X, fit.Coefficients, g)
+			var h float64
+			for j := range g {
+				for k := range g {
+					h += g[j] * fit.Covariance[j][k] * g[k]
+				}
+			}
+			pr.Leverage = pr.Weight * h / s2
+			if 1-pr.Leverage > 1e-10 {
+				pr.Studentized = pr.WeightedResidual / (fit.ResidualSD * math.Sqrt(1-pr.Leverage))
+			}
+		}
+	}
 	// Weighted R² on the Σw = n scale.
 	var mw, sst float64
 	for k := range pidx {
