@@ -32,15 +32,7 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 		pr.Flags = append(pr.Flags, flag, FlagUnbounded)
 		return nil
 	}
-	switch {
-	case x0 < r.Range.Low:
-		pr.Flags = append(pr.Flags, FlagBelowRange, FlagExtrapolated)
-	case x0 > r.Range.High:
-		pr.Flags = append(pr.Flags, FlagAboveRange, FlagExtrapolated)
-	}
-	if x0 < 0 {
-		pr.Flags = append(pr.Flags, FlagNegative)
-	}
+	pr.Flags = rangeFlags(pr.Flags, x0, r.Range)
 	pr.Concentration = x0 * pr.Dilution
 	grad := make([]float64, len(beta))
 	_, v := r.unknownVar(c, x0, m, grad)

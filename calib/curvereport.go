@@ -218,16 +218,7 @@ func resolveCurveOptions(opt Options) (Options, error) {
 	if !slices.Contains(CurveWeightings(), opt.Weighting) {
 		return opt, inputErr("options.weighting", "weighting %q is not offered for the non-linear model %s (none, 1/y^2, 1/s^2, power_of_mean)", opt.Weighting, opt.Model)
 	}
-	if opt.Confidence == 0 {
-		opt.Confidence = 0.95
-	}
-	if !(opt.Confidence > 0 && opt.Confidence < 1) {
-		return opt, inputErr("options.confidence", "must lie in (0, 1), got %v", opt.Confidence)
-	}
-	if opt.Policy.isZero() {
-		opt.Policy = defaultPolicy
-	}
-	return opt, opt.Policy.validate()
+	return opt, resolveConfidencePolicy(&opt)
 }
 
 // groupCurveLevels groups the fitted readings (pidx into points) by

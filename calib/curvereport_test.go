@@ -18,17 +18,6 @@ func elisaPoints() []Point {
 	return pts
 }
 
-func checkOf(t *testing.T, r *Report, name string) Check {
-	t.Helper()
-	for _, c := range r.Checks {
-		if c.Name == name {
-			return c
-		}
-	}
-	t.Fatalf("no check %s", name)
-	return Check{}
-}
-
 // TestCurveReportBandInversionGolden: the 1/y²-weighted 4PL report's
 // coefficients and its inverse-prediction intervals against
 // testdata/golden/scipy_band_4pl.json (testdata/gen/make_golden_band.py:
@@ -100,7 +89,7 @@ func TestCurveReportChecks(t *testing.T) {
 		t.Fatal(err)
 	}
 	for _, name := range []string{CheckConvergence, CheckMinLevels, CheckBackCalculation, CheckMonotonic, CheckLackOfFit} {
-		if c := checkOf(t, r, name); !c.Computed || !c.Passed {
+		if c := checkByName(t, r, name); !c.Computed || !c.Passed {
 			t.Errorf("%s: %+v", name, c)
 		}
 	}
@@ -124,7 +113,7 @@ func TestCurveReportChecks(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if c := checkOf(t, rb, CheckBackCalculation); !c.Computed || c.Passed || c.Statistic >= 0.75 {
+	if c := checkByName(t, rb, CheckBackCalculation); !c.Computed || c.Passed || c.Statistic >= 0.75 {
 		t.Errorf("back-calculation should fail: %+v", c)
 	}
 	// Anchors: a level labelled anchor… is fitted but not judged; with
