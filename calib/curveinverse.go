@@ -32,7 +32,7 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 		pr.Flags = append(pr.Flags, flag, FlagUnbounded)
 		return nil
 	}
-	pr.Flags = rangeFlags(pr.Flags, x0, r.Range)
+	pr.Flags = r.Range.appendFlags(pr.Flags, x0)
 	pr.Concentration = x0 * pr.Dilution
 	grad := make([]float64, len(beta))
 	_, v := r.unknownVar(c, x0, m, grad)

@@ -68,7 +68,7 @@ func (f *CurveFit) Predict(responses []float64, w0, dilution, confidence float64
 		return pr, nil
 	}
 	pr.Concentration = x0 * dilution
-	pr.Flags = rangeFlags(pr.Flags, x0, f.Range)
+	pr.Flags = f.Range.appendFlags(pr.Flags, x0)
 	grad := make([]float64, len(beta))
 	c.Eval(x0, beta, grad)
 	v := f.ResidualSD * f.ResidualSD / (float64(m) * w0 * f.WeightScale)
@@ -92,19 +92,4 @@ func (f *CurveFit) Predict(responses []float64, w0, dilution, confidence float64
 	}
 	pr.Interval.Low, pr.Interval.High, pr.Interval.Bounded = lo, hi, true
 	return pr, nil
-}
-
-// rangeFlags appends the flags of a curve's x̂0 against its range: below or
-// above it (extrapolated), and negative.
-func rangeFlags(flags []string, x0 float64, r Range) []string {
-	switch {
-	case x0 < r.Low:
-		flags = append(flags, FlagBelowRange, FlagExtrapolated)
-	case x0 > r.High:
-		flags = append(flags, FlagAboveRange, FlagExtrapolated)
-	}
-	if x0 < 0 {
-		flags = append(flags, FlagNegative)
-	}
-	return flags
 }
