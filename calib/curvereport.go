@@ -68,6 +68,24 @@ func ParameterNames(m Model) []string {
 	return nil
 }
 
+// Equation returns a non-linear model's equation in its parameter names
+// (see FourPL), or "".
+func Equation(m Model) string {
+	switch m {
+	case FourPL:
+		return "y = d + (a − d)/(1 + (x/c)^b)"
+	case FivePL:
+		return "y = d + (a − d)/(1 + (x/c)^b)^g"
+	case Power:
+		return "y = a·x^b"
+	case ExpSaturation:
+		return "y = a·(1 − e^(−b·x))"
+	case ExpSaturationOffset:
+		return "y = y0 + a·(1 − e^(−b·x))"
+	}
+	return ""
+}
+
 // CurveDetails is what a Report of a non-linear model adds (nil for the
 // least-squares models).
 type CurveDetails struct {
