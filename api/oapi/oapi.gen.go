@@ -39,6 +39,7 @@ const (
 	CheckRSquared              CheckName = "r_squared"
 	CheckRelativeStandardError CheckName = "relative_standard_error"
 	CheckResidualRuns          CheckName = "residual_runs"
+	CheckStandardsInDate       CheckName = "standards_in_date"
 )
 
 // Valid indicates whether the value is a known member of the CheckName enum.
@@ -71,6 +72,8 @@ func (e CheckName) Valid() bool {
 	case CheckRelativeStandardError:
 		return true
 	case CheckResidualRuns:
+		return true
+	case CheckStandardsInDate:
 		return true
 	default:
 		return false
@@ -182,6 +185,39 @@ func (e HealthStatus) Valid() bool {
 	case HealthOK:
 		return true
 	case HealthReady:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for MethodExpiredStandards.
+const (
+	MethodExpiredStandardsAdvisory MethodExpiredStandards = "advisory"
+)
+
+// Valid indicates whether the value is a known member of the MethodExpiredStandards enum.
+func (e MethodExpiredStandards) Valid() bool {
+	switch e {
+	case MethodExpiredStandardsAdvisory:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for MethodRequestExpiredStandards.
+const (
+	MethodRequestExpiredStandardsAdvisory  MethodRequestExpiredStandards = "advisory"
+	MethodRequestExpiredStandardsMandatory MethodRequestExpiredStandards = "mandatory"
+)
+
+// Valid indicates whether the value is a known member of the MethodRequestExpiredStandards enum.
+func (e MethodRequestExpiredStandards) Valid() bool {
+	switch e {
+	case MethodRequestExpiredStandardsAdvisory:
+		return true
+	case MethodRequestExpiredStandardsMandatory:
 		return true
 	default:
 		return false
@@ -374,6 +410,27 @@ func (e SigmaBasis) Valid() bool {
 	case SigmaBasisLowestLevelSd:
 		return true
 	case SigmaBasisResidualSd:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for StandardMaterialKind.
+const (
+	MaterialLevel     StandardMaterialKind = "calibration_level"
+	MaterialReference StandardMaterialKind = "reference_material"
+	MaterialStock     StandardMaterialKind = "stock_solution"
+)
+
+// Valid indicates whether the value is a known member of the StandardMaterialKind enum.
+func (e StandardMaterialKind) Valid() bool {
+	switch e {
+	case MaterialLevel:
+		return true
+	case MaterialReference:
+		return true
+	case MaterialStock:
 		return true
 	default:
 		return false
@@ -599,6 +656,9 @@ type Check struct {
 	// `GET /v1/trends`). It is advisory unless the method lists it as
 	// mandatory, and it is left out when fewer than 10 approved curves
 	// exist, unless it is mandatory (then it is reported as not computed).
+	// `standards_in_date` is computed at ingest when the run names its
+	// standard materials; the method's `expired_standards` makes it
+	// mandatory (the default) or advisory, not this list.
 	Name   CheckName `json:"name"`
 	Passed bool      `json:"passed"`
 
@@ -619,6 +679,9 @@ type Check struct {
 // `GET /v1/trends`). It is advisory unless the method lists it as
 // mandatory, and it is left out when fewer than 10 approved curves
 // exist, unless it is mandatory (then it is reported as not computed).
+// `standards_in_date` is computed at ingest when the run names its
+// standard materials; the method's `expired_standards` makes it
+// mandatory (the default) or advisory, not this list.
 type CheckName string
 
 // Concentration A nominal concentration, in the analyte's unit.
@@ -1078,6 +1141,9 @@ type Method struct {
 	// Description Empty when none was given.
 	Description string `json:"description"`
 
+	// ExpiredStandards Present, as `advisory`, only when the method makes the standards check advisory.
+	ExpiredStandards *MethodExpiredStandards `json:"expired_standards,omitempty"`
+
 	// MaxCurveAgeHours Null when curves do not expire.
 	MaxCurveAgeHours *float64 `json:"max_curve_age_hours"`
 
@@ -1121,6 +1187,9 @@ type Method struct {
 	WeightingOptions WeightingOptions `json:"weighting_options"`
 }
 
+// MethodExpiredStandards Present, as `advisory`, only when the method makes the standards check advisory.
+type MethodExpiredStandards string
+
 // MethodList defines model for MethodList.
 type MethodList struct {
 	Methods []Method `json:"methods"`
@@ -1137,6 +1206,10 @@ type MethodRequest struct {
 
 	// Description Free text for people; no control characters except tab, line feed and carriage return.
 	Description *Text `json:"description,omitempty"`
+
+	// ExpiredStandards Whether a curve whose run used an out-of-date standard material
+	// fails (`mandatory`, the default) or only reports it (`advisory`).
+	ExpiredStandards *MethodRequestExpiredStandards `json:"expired_standards,omitempty"`
 
 	// MaxCurveAgeHours How long after acquisition a curve stays in force; no limit when absent.
 	MaxCurveAgeHours *float64 `json:"max_curve_age_hours,omitempty"`
@@ -1183,6 +1256,10 @@ type MethodRequest struct {
 	// WeightingOptions A method's weighting options; a field left out takes its default.
 	WeightingOptions *WeightingOptionsInput `json:"weighting_options,omitempty"`
 }
+
+// MethodRequestExpiredStandards Whether a curve whose run used an out-of-date standard material
+// fails (`mandatory`, the default) or only reports it (`advisory`).
+type MethodRequestExpiredStandards string
 
 // Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 // y = b0 + b1·x + b2·x² (ISO 8466-2).
@@ -1271,6 +1348,14 @@ type PredictionSample struct {
 
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
+}
+
+// PreparationStep An aliquot of the parent made up to a final volume, each volume in mL with its tolerance ± (rectangular).
+type PreparationStep struct {
+	AliquotMl    float64 `json:"aliquot_ml"`
+	AliquotTolMl float64 `json:"aliquot_tol_ml"`
+	FinalMl      float64 `json:"final_ml"`
+	FinalTolMl   float64 `json:"final_tol_ml"`
 }
 
 // Problem RFC 9457 problem details.
@@ -1479,9 +1564,12 @@ type Run struct {
 	MethodRevision int        `json:"method_revision"`
 
 	// Operator Null when none was given.
-	Operator  *string     `json:"operator"`
-	Samples   []RunSample `json:"samples"`
-	Standards []Standard  `json:"standards"`
+	Operator *string     `json:"operator"`
+	Samples  []RunSample `json:"samples"`
+
+	// StandardMaterials The standard materials the run named; absent when none.
+	StandardMaterials *[]string  `json:"standard_materials,omitempty"`
+	Standards         []Standard `json:"standards"`
 }
 
 // RunFormat The content type the run was posted in.
@@ -1526,6 +1614,14 @@ type RunRequest struct {
 	// Operator Who ran the instrument; an identifier that may also hold `@`.
 	Operator *Operator         `json:"operator,omitempty"`
 	Samples  *[]RunSampleInput `json:"samples,omitempty"`
+
+	// StandardMaterials Codes of the standard materials the run's standards were made
+	// from (see /v1/standard-materials). Each curve of a material's
+	// analyte gets the check `standards_in_date`: every material and
+	// every material it was prepared from within its expiry at
+	// `acquired_at`, and prepared before its parent expired. The check
+	// is mandatory unless the method makes it advisory.
+	StandardMaterials *[]Identifier `json:"standard_materials,omitempty"`
 
 	// Standards One entry per analyte and level.
 	Standards []StandardInput `json:"standards"`
@@ -1665,6 +1761,72 @@ type StandardInput struct {
 
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
+}
+
+// StandardMaterial defines model for StandardMaterial.
+type StandardMaterial struct {
+	Analyte             string               `json:"analyte"`
+	Code                string               `json:"code"`
+	CoverageFactor      *float64             `json:"coverage_factor,omitempty"`
+	CreatedAt           time.Time            `json:"created_at"`
+	CreatedBy           string               `json:"created_by"`
+	ExpandedUncertainty *float64             `json:"expanded_uncertainty,omitempty"`
+	ExpiresAt           time.Time            `json:"expires_at"`
+	Kind                StandardMaterialKind `json:"kind"`
+	Level               *string              `json:"level,omitempty"`
+	Lot                 string               `json:"lot"`
+	Preparation         []PreparationStep    `json:"preparation"`
+	PreparedAt          *time.Time           `json:"prepared_at,omitempty"`
+	PreparedFrom        *string              `json:"prepared_from,omitempty"`
+
+	// RelativeUncertainty u(value)/value from the certificate and the preparation.
+	RelativeUncertainty float64  `json:"relative_uncertainty"`
+	Supplier            string   `json:"supplier"`
+	Tolerance           *float64 `json:"tolerance,omitempty"`
+	Unit                string   `json:"unit"`
+	Value               float64  `json:"value"`
+}
+
+// StandardMaterialKind defines model for StandardMaterialKind.
+type StandardMaterialKind string
+
+// StandardMaterialList defines model for StandardMaterialList.
+type StandardMaterialList struct {
+	Materials []StandardMaterial `json:"materials"`
+}
+
+// StandardMaterialRequest defines model for StandardMaterialRequest.
+type StandardMaterialRequest struct {
+	// Analyte Required unless prepared; a prepared material takes its parent's.
+	Analyte *Identifier `json:"analyte,omitempty"`
+
+	// Code A name of an instrument, analyte, method, level or sample.
+	Code           Identifier `json:"code"`
+	CoverageFactor *float64   `json:"coverage_factor,omitempty"`
+
+	// ExpandedUncertainty The certificate's expanded uncertainty U, with coverage_factor.
+	ExpandedUncertainty *float64             `json:"expanded_uncertainty,omitempty"`
+	ExpiresAt           time.Time            `json:"expires_at"`
+	Kind                StandardMaterialKind `json:"kind"`
+
+	// Level The calibration level this material is (calibration_level only).
+	Level       *Identifier        `json:"level,omitempty"`
+	Lot         *string            `json:"lot,omitempty"`
+	Preparation *[]PreparationStep `json:"preparation,omitempty"`
+	PreparedAt  *time.Time         `json:"prepared_at,omitempty"`
+
+	// PreparedFrom A name of an instrument, analyte, method, level or sample.
+	PreparedFrom *Identifier `json:"prepared_from,omitempty"`
+	Supplier     *string     `json:"supplier,omitempty"`
+
+	// Tolerance The certificate's tolerance ± a, instead of U and k.
+	Tolerance *float64 `json:"tolerance,omitempty"`
+
+	// Unit Required unless prepared; a prepared material takes its parent's.
+	Unit *Unit `json:"unit,omitempty"`
+
+	// Value The certificate value; left out for a prepared material.
+	Value *float64 `json:"value,omitempty"`
 }
 
 // Text Free text for people; no control characters except tab, line feed and carriage return.
@@ -2098,6 +2260,9 @@ type CreateRunJSONRequestBody = RunRequest
 // CreateRunSamplesJSONRequestBody defines body for CreateRunSamples for application/json ContentType.
 type CreateRunSamplesJSONRequestBody = SamplesRequest
 
+// CreateStandardMaterialJSONRequestBody defines body for CreateStandardMaterial for application/json ContentType.
+type CreateStandardMaterialJSONRequestBody = StandardMaterialRequest
+
 // CreateTokenJSONRequestBody defines body for CreateToken for application/json ContentType.
 type CreateTokenJSONRequestBody = TokenRequest
 
@@ -2178,6 +2343,15 @@ type ServerInterface interface {
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx echo.Context, sampleID Identifier) error
+	// ListStandardMaterials All standard materials
+	// (GET /v1/standard-materials)
+	ListStandardMaterials(ctx echo.Context) error
+	// CreateStandardMaterial Record a standard material
+	// (POST /v1/standard-materials)
+	CreateStandardMaterial(ctx echo.Context) error
+	// GetStandardMaterial One standard material
+	// (GET /v1/standard-materials/{code})
+	GetStandardMaterial(ctx echo.Context, code Identifier) error
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx echo.Context) error
@@ -2687,6 +2861,40 @@ func (w *ServerInterfaceWrapper) GetSampleResults(ctx echo.Context) error {
 	return err
 }
 
+// ListStandardMaterials converts echo context to params.
+func (w *ServerInterfaceWrapper) ListStandardMaterials(ctx echo.Context) error {
+	var err error
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListStandardMaterials(ctx)
+	return err
+}
+
+// CreateStandardMaterial converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateStandardMaterial(ctx echo.Context) error {
+	var err error
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateStandardMaterial(ctx)
+	return err
+}
+
+// GetStandardMaterial converts echo context to params.
+func (w *ServerInterfaceWrapper) GetStandardMaterial(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "code" -------------
+	var code Identifier
+
+	err = runtime.BindStyledParameterWithOptions("simple", "code", ctx.Param("code"), &code, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter code: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetStandardMaterial(ctx, code)
+	return err
+}
+
 // CreateToken converts echo context to params.
 func (w *ServerInterfaceWrapper) CreateToken(ctx echo.Context) error {
 	var err error
@@ -2892,6 +3100,9 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/methods", wrapper.ListMethods, options.OperationMiddlewares["listMethods"]...)
 	router.POST(options.BaseURL+"/v1/methods", wrapper.CreateMethod, options.OperationMiddlewares["createMethod"]...)
 	router.GET(options.BaseURL+"/v1/methods/:name", wrapper.GetMethod, options.OperationMiddlewares["getMethod"]...)
+	router.GET(options.BaseURL+"/v1/standard-materials", wrapper.ListStandardMaterials, options.OperationMiddlewares["listStandardMaterials"]...)
+	router.POST(options.BaseURL+"/v1/standard-materials", wrapper.CreateStandardMaterial, options.OperationMiddlewares["createStandardMaterial"]...)
+	router.GET(options.BaseURL+"/v1/standard-materials/:code", wrapper.GetStandardMaterial, options.OperationMiddlewares["getStandardMaterial"]...)
 	router.POST(options.BaseURL+"/v1/tokens", wrapper.CreateToken, options.OperationMiddlewares["createToken"]...)
 	router.DELETE(options.BaseURL+"/v1/tokens/:id", wrapper.DeleteToken, options.OperationMiddlewares["deleteToken"]...)
 
@@ -6010,6 +6221,20 @@ type GetRunResultsResponseObject interface {
 	VisitGetRunResultsResponse(w http.ResponseWriter) error
 }
 
+type GetRunResults200ApplicationFhirPlusJSONResponse map[string]interface{}
+
+func (response GetRunResults200ApplicationFhirPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/fhir+json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type GetRunResults200JSONResponse RunResults
 
 func (response GetRunResults200JSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
@@ -6021,6 +6246,46 @@ func (response GetRunResults200JSONResponse) VisitGetRunResultsResponse(w http.R
 	w.Header().Set("Content-Type", "application/json")
 	w.WriteHeader(200)
 	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults200TextCsvResponse struct {
+	Body          io.Reader
+	ContentLength int64
+}
+
+func (response GetRunResults200TextCsvResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	w.Header().Set("Content-Type", "text/csv")
+	if response.ContentLength != 0 {
+		w.Header().Set("Content-Length", fmt.Sprint(response.ContentLength))
+	}
+	w.WriteHeader(200)
+
+	if closer, ok := response.Body.(io.ReadCloser); ok {
+		defer closer.Close()
+	}
+	_, err := io.Copy(w, response.Body)
+	return err
+}
+
+type GetRunResults200XApplicationHl7V2Er7Response struct {
+	Body          io.Reader
+	ContentLength int64
+}
+
+func (response GetRunResults200XApplicationHl7V2Er7Response) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	w.Header().Set("Content-Type", "x-application/hl7-v2+er7")
+	if response.ContentLength != 0 {
+		w.Header().Set("Content-Length", fmt.Sprint(response.ContentLength))
+	}
+	w.WriteHeader(200)
+
+	if closer, ok := response.Body.(io.ReadCloser); ok {
+		defer closer.Close()
+	}
+	_, err := io.Copy(w, response.Body)
 	return err
 }
 
@@ -6466,6 +6731,456 @@ type GetSampleResults503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterialsRequestObject struct {
+}
+
+type ListStandardMaterialsResponseObject interface {
+	VisitListStandardMaterialsResponse(w http.ResponseWriter) error
+}
+
+type ListStandardMaterials200JSONResponse StandardMaterialList
+
+func (response ListStandardMaterials200JSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials400ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials401ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials403ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials429ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials500ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials503ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterialRequestObject struct {
+	Body *CreateStandardMaterialJSONRequestBody
+}
+
+type CreateStandardMaterialResponseObject interface {
+	VisitCreateStandardMaterialResponse(w http.ResponseWriter) error
+}
+
+type CreateStandardMaterial201ResponseHeaders struct {
+	Location string
+}
+
+type CreateStandardMaterial201JSONResponse struct {
+	Body    StandardMaterial
+	Headers CreateStandardMaterial201ResponseHeaders
+}
+
+func (response CreateStandardMaterial201JSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.Header().Set("Location", fmt.Sprint(response.Headers.Location))
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial400ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial401ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial403ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial409ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial413ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial415ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial422ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial429ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial500ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial503ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterialRequestObject struct {
+	Code Identifier `json:"code"`
+}
+
+type GetStandardMaterialResponseObject interface {
+	VisitGetStandardMaterialResponse(w http.ResponseWriter) error
+}
+
+type GetStandardMaterial200JSONResponse StandardMaterial
+
+func (response GetStandardMaterial200JSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial400ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial401ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial403ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial404ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial429ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial500ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial503ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -7103,6 +7818,15 @@ type StrictServerInterface interface {
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx context.Context, request GetSampleResultsRequestObject) (GetSampleResultsResponseObject, error)
+	// ListStandardMaterials All standard materials
+	// (GET /v1/standard-materials)
+	ListStandardMaterials(ctx context.Context, request ListStandardMaterialsRequestObject) (ListStandardMaterialsResponseObject, error)
+	// CreateStandardMaterial Record a standard material
+	// (POST /v1/standard-materials)
+	CreateStandardMaterial(ctx context.Context, request CreateStandardMaterialRequestObject) (CreateStandardMaterialResponseObject, error)
+	// GetStandardMaterial One standard material
+	// (GET /v1/standard-materials/{code})
+	GetStandardMaterial(ctx context.Context, request GetStandardMaterialRequestObject) (GetStandardMaterialResponseObject, error)
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx context.Context, request CreateTokenRequestObject) (CreateTokenResponseObject, error)
@@ -7933,6 +8657,100 @@ func (sh *strictHandler) GetSampleResults(ctx echo.Context, sampleID Identifier)
 	return nil
 }
 
+// ListStandardMaterials operation middleware
+func (sh *strictHandler) ListStandardMaterials(ctx echo.Context) error {
+	var request ListStandardMaterialsRequestObject
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListStandardMaterials(ctx.Request().Context(), request.(ListStandardMaterialsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListStandardMaterials")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListStandardMaterialsResponseObject); ok {
+		return validResponse.VisitListStandardMaterialsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateStandardMaterial operation middleware
+func (sh *strictHandler) CreateStandardMaterial(ctx echo.Context) error {
+	var request CreateStandardMaterialRequestObject
+
+	var body CreateStandardMaterialJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateStandardMaterial(ctx.Request().Context(), request.(CreateStandardMaterialRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateStandardMaterial")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateStandardMaterialResponseObject); ok {
+		return validResponse.VisitCreateStandardMaterialResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetStandardMaterial operation middleware
+func (sh *strictHandler) GetStandardMaterial(ctx echo.Context, code Identifier) error {
+	var request GetStandardMaterialRequestObject
+
+	request.Code = code
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetStandardMaterial(ctx.Request().Context(), request.(GetStandardMaterialRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetStandardMaterial")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetStandardMaterialResponseObject); ok {
+		return validResponse.VisitGetStandardMaterialResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // CreateToken operation middleware
 func (sh *strictHandler) CreateToken(ctx echo.Context) error {
 	var request CreateTokenRequestObject
@@ -8059,386 +8877,422 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L3dcxtJli/2r6Qxd6KB7iIIUlR3i4yJuGxK2tEdfQ2p7t7rhhqVrEoAuSpkQpVVJDEtOdaxL3tfrx8c",
-	"4Qe/+ON9N8Ix6/BbO/y6+zd4/hLHOSczK6tQAAGKVPesNRHTIoCq/M7zfX7np06iZ3OthCpM5/CnzlTw",
-	"VOT456ko8sXxuBA5fEqFSXI5L6RWncPOmUi0Sg0rNLvksmDnYqxzwXJ4RapJvxN1cvG2lLlIO4dFXoqo",
-	"Y5KpmHFoaiaVnJWzzuEg6hSLuegcdqQqxETknffv30edOc/5TBR2GCdlfiGePFwew6upYAn8+JlhMoUu",
-	"JXw958W0E3UUn2HD6dqh/IdcjDuHnd/sVquwS7+a3W+/ffKwA+N5korZXBdCJYs/iMXyQI5Zkkmhip1k",
-	"qo1Q7I1YsC5n8D6ThnE20TplyVTLRPRYMeUFm/E3An6BBZMiHSoYojAFM3wsjpgRghVTwfRc5Bx6+cyw",
-	"oM/+ULnZ0n5V8w3GugODra07v3oq1KSYdg739r+OYB/8Z1j1ohA5tPnjD8c7/y3f+dNg50F/dLjz+qe9",
-	"aG//6/f/oeO3yxS5VBNaHGWKvJwJVbTvkPS/M5kKVcixFHnEuGFzbQqRsktZTJksDMtLZVbtYtXJTXfz",
-	"ie8ch31aqlVnKi/V3Z6o9/C+mWtlBJ7wb3h6StsPnxKtCruafD7PZIIHYHee6/NMzL74OwMD/WnDHl/S",
-	"W9RpfarPeDbW+UykzCxUwa8idplrNWGwxUznjLMLnpWC6bIwMqXzSM0espl7d6j+09mL5xHjjI4Eu5yK",
-	"XDDOVDk7Fzk7F5lWExMxrlip3ih9qdhYiiyFV+yJYzofqpyriWAXUme8EPjr21LkC+ZpAd2bVAvDlC4Y",
-	"LM0C7sH7qHOi1TiTyUddPTwowugyT4D+mIIXgo11fi6BKuKPdKG7nIgUy8WFFJciZTzLBU8XEeNDRT/B",
-	"FdBlwTgbyyJi3L8MP9DC85lgsrrbSGNMIbOMSTWE6U+mRc+ux2McRirUx16QQr8RimU8eWOYuIDtM4me",
-	"C5ZJvOlSsfhqx12dHfzNxP0OUhE4CTx7lOc6/5jDdh0zAT33GUzjXKcLZvjCMK2yBRt2ZO2hYYdxldY2",
-	"GYjF+6jzXBePdanSj73uQJlSfxyrSyKupClwZC/5ItM8faX1U55PxMceIK6ouEqEsLfDiPxC5J8Zlmg1",
-	"lpMyFynL5EzSaM9EfiET8a3iF1xm/Dz76ANOecHPuREs4QpW8hz2midTkTKlLyM/B5kIYPFmWhYFkL9U",
-	"X6oICVp3jDT0MpcFMn1pkBVyldjZG2gxtWfsXCS8NAL5oO9bmqECwspVer4gnt8Uz3a8fNY2Wfv0biDJ",
-	"4Xxfaf2Mq4VlOuYXIROfGX97cqCd0jB9IXJcAXsSbmu63ypeFlOdyz+Jj3o1n0ljpJpEFbuMPBPUOTAE",
-	"/Uak7FzwXOS0Ko1Jf//99zvHZTEVqoBRimWBJf4G346JVXDFYqRRMeNFkcvzshCse/r4hH351f1Bb71Y",
-	"3pTtaOnmuU6EMXAJH6lCFouPuYLfiyzbsVKKVPOyICngPBf8DYrPZSaYHofX8ciugImRLBoG13ao9Hgs",
-	"VApXFMWPioKXmbBs81tlyvlc54VIn4lU8le4Hh9bpMAr8ZlhJ9TrDowCLgdQIa0aagHjSSLmhemjTGv7",
-	"gCEc4/dAbJ7AsuHY01TCOzx7mUMDhRSmczjmmRHNkVRvs2KaCzPVWWqOcCVxDJkYFyAXsgLVGBiSUBOp",
-	"BKopY15mBeuaKQl7WUasXyt8cCaKqU7xKM6DcfzUOefJm1HCs2SU6ctRoTORwwhGcxLsxFWSlUZeiGdO",
-	"e6TzC6eDF53DTqpLYBQRqDn0wN5gELUpmySbwpZXfc6kGs25MaNxzhNahp/Wtr1xyx9nJlM90yYRKTeF",
-	"TGSxGPFsPr32NB7jQ+8jknBg07d8D2S9kR6PxnLbN2dcpbzQeYs+fTIVIEFegjbNxlxmZU7/0lG7EHkq",
-	"k+IIP+hiKnLDOCgd6YU0Ol+g3laImbluLNjPcz4TNJ6rJ/TSXrW+PM856NClkm9LYX+H3bITENnWs74a",
-	"5eZujwIc5UxciMxYpZ8evR++t79seaEX85F5W/KcGOUHnH9dFpkU+SjR+o0ZpXc2WdePKUpU8P8k7q4v",
-	"MFBsud8XIpdjyzGWKUH92L/77cN3oHUHr5Dwx/OUdZ+cfLd7cvJdj834ggFtZXzCpQLlozBDpfRMgoaC",
-	"OnufPbRUeH8QMQ6SEPv2jD16eczOvt/5+uBL9gypMPt6MBg8HKqEZ/LccpSwe7piGT/XOV7Vz4wl38yI",
-	"wkDHTF9aa9QdrPh7/40+/zuRFLCgFWt6qTOZLLbkbI9QK/VMDfjSWOeJiBzfMhXH2ppFLU/1wxnONoxl",
-	"g7dXs4kNXm5hEhu81coiNnivxiC2p+c1Ct5CrjcaQY1Yb/JGjfTeiMJuQkm3eKtBFzd4s07lNnhhGxoH",
-	"Mi7RuSzTYAwDLbmV4hnWTQMitpp8oSh57TDfh5rPD+FGNY5G24FdeW9WX8doLbFYTwia56R+EpfvYW3P",
-	"2rd++RiFF2ztHr5uo8LueDQdIUZOFDYEugMucL+zlgcM+vdDHtAfDAZ7LWfsWPFsUYhrqX2dXpPFfnO/",
-	"AAp6xbVWfHimeaCwK/t+64qVqSweXTg9cvM5VMyhoRqDInzJDUu1EhET/UmfxXmp+kkueCHSOGIxWpf7",
-	"Y1nUPvP5PNcX4Te5gGGKNO4vu3giGIFucQECoXW6Nxl+UTfn0FB7Ow0qyguxU8iZaHs2FQWXWTv9mPO8",
-	"kEmZ8dxETKokK1Gv587CnqNpiRut+q0eq3DbeNFxE4w6/vrZ3lfu41M92XIXxYVzsG7EyYLTssTKGjOw",
-	"LbeN9YSXMDyz4vCQAdsAhQUvpUqtmeHQWhXwDjshM7DTWrI8VEkuC5FLzsa5nrF5eZ5JAxbSSSlTeLlF",
-	"fORJkotUFkhoInB7TsoMfsT+rXB59uIlWhbYPBeJSAU2RZvLzhfoGuIZXNmUzUVutBoq73/OBDfC+kfd",
-	"Si+drplUTtdbFhRQithye2ELy0Kkyyv9GB4HrxhZPxJonCW6zFJm7cruXVwtxWLgBSKNYTOwL1yZmI5k",
-	"TG6Jy+kiONrnWmeCq/q1WZoz2lTbL1QgDuNRgBEB40Gb4hFTZZY1ZzDlcFQUOgov8e/CT6Sd4kMrZMkn",
-	"vWC9vNc8rgLU/MB+ZB3oaFanEaUicV5KbyBA48ClNMJOLLQQLC/eJtyiJmLSTgWrHTRGrpjWqeTCWx7p",
-	"1hWV1SzRM4HXqZWCGrg3IIGs2EcMIHDPwNbMBDd4Z1EtDLfygzesnf9VI3Qnzi9TVN2Suuxhl2ot2a3W",
-	"vS36An50rCigXXPUEA9ZXEl7wPNI3IujoYoDUQ9+aUp58J0X1IBOSa3gOy+aYSO5gF8uxMiJriMywUcs",
-	"9pIaviWMTEuejUBagy+sSGawlZlWutBKJvBLmstxEfdZ8C3r+jUDImgPTI/ZTUDTmPMnFxoIC5ybpMgW",
-	"zDdCHhZYpUudvwGmiW73vusQPU5ulxgvmFQTYYpDfEWJSx9uYzI9r3gDXUuu8DSfPfQGefRZV+Ef8Csn",
-	"Oe4zw/YHbKZNwYDEq2KonFRCfZio8n1/L0wxARsIiSl4cQzrGiGGKv6bR6/Y7sXebpELlZq412dPaled",
-	"lSoTxoSkI5MGjReMm6HyixrZuwgve/s2XpUxyBQg3Ci2N2CNcQ4VOlkj1w81UG1VF4k6fZsL8i6wBsHs",
-	"WQuKKmcrdJO6VtKij4QahT2onagTqhArTmmoTuBTwRmttAYciTtFcFPhuOCNVhcinwCHRmOJSKQBDWKe",
-	"67HMRHCVLRGLOlc7MM+dC56jewYmjJf7GQQj2UnTF27m+OkpT968GD+Whfvi98srgN9/w5M3J7VVwK9P",
-	"z/xK0Ge7HGd2NR7ZxcAfnwQrYp+mZTmlVcHvXlRLQ+MN1ge/eGgXCT+c1FYKv3rpluulWy2KZYH7QMa4",
-	"NmLnDH1J+CDIwUT9/P0CTeQa3WtvEPzvGtsnxNhIFMVaeM+l3jEyhTvhnyLlD0gBHq8LnpmIDfr3gTYN",
-	"+g8ePLhWL3zw4EFNM7zfPqoi19lT4DRmS1Pg2VRcTnmOoi00Ql5nw7pPzl6wr77+arCz33Mc08fngF8+",
-	"k0r0Wxhkm942msrJdEM7in0j05cbvoD7LzZ8+JLnSqrJNgNyr2w6ooZIYIdXb6cxkNqso9qitYoBtFWn",
-	"ZdYqCFScAmSrrv8oCsazfsROMqn67GQqZn22/xXr7j34eq/HDh7c6x2yeG9n38RDFGop8O1cLLRK2c//",
-	"tA9MrWvH3TuCR++ZGD2h/pl77OzhEYv3oRFWXGrgo8qIpAQi4x7zXBFbxPN2xOLTnQN6hwWvRND8UPFz",
-	"fSHYF/i8c1mjVIuRdZfsL//4X/ep54OdPROzsS5zttzzUPmu98Ku9wZXMSuEqr1iHbX4NEb+6bFn8XVO",
-	"BUvWiTqwHJ2os0+fYDqdqAPjgd8GVxtyAdjUPWoB/rrn/tr3350euL8O9vxz0D6cjDI3bVaKF3P+thQQ",
-	"LmdEATzb6Jx14Rp/eVDm1dWeA+VQEzQmBnGy9/f2N4qTHe28/uI/tInsGL28rfudkcmGRIw++97pXrng",
-	"MEhTVyDtw2B7yTIQJRMtxmOZSKEKlDPrHN/EpFEm+oLnEgTlGN2nYjYvFhGJkXSjDVl0lIDWoRt8Dshe",
-	"xGKrZKGeGoNzNo5su+i9RU11qEBTxSPTJI5EJka8aFWR7HRLhcqle7rOMtaZj3hlLlz6LQmsImtVPfcc",
-	"vINz2s4R0eaECHdmeeJPFJvpVGQ74m1JxnCdpyI/ZMBxeM5+OB9E7HzvdWS/GOlcTqRiP+B3b0ue5hwU",
-	"P/tcxM73Xx8xpdWObQBbNyB+xs/gT2tO6FKgDIRnKq3o2b4PvB3hr3Gv5lbfzHtijSz32xZitThx0iJE",
-	"wHE4JwUihc9OX/bCxUZOgKhTHfq2ft1vbMaLXF65jsNdi5j5+Z+7f/v//h9///3f9v7y3/9fP/+fEcv1",
-	"Ja5e8BztXG3Jbm3t1i8sWX/XXywbdcyNpx0qZabQW92xdLzcg5OTWSomuRAGVnCcC5HqWcQUcCs2Dywb",
-	"gWeM4odGFyI3rYIvJnsEbmp6ngiU11hhbhhBTdZwfH53rz/oD9ot29ZnrdV1F/qRf/B91BlnfGLaLH1J",
-	"YRg/x7goGggNz1qmlHaGqY0DVB7L4nHGJ22UZCr4hRSmIE3xuoZQszqb8hztVjLdLFEhCvMuWm2K3tVZ",
-	"X4qH0hRSJQXdX+OUkzFpJOvSf6zV6NqVsRI/3AZU6luHRz+NwHK8+lDRQ8w91H4/QEqoDX2vbehIXq8b",
-	"ORJeeFq1XR/L36sFY108pKBcaSWc3aBUaDa4djE9Ob+WY8GMn/unwbipZSuToggKH5diRZLIrZTOmRtw",
-	"xCa5LucQ4bqwlFwqYuZGVuxt83AtGONLGFbbhai51ZtRpJAdIdI6gQYmUogctGkcTLckhdo6pWsstndD",
-	"mzaa166b1yk+9D4wvph0DWn1S5+KC0lDN93F7lUvcpL7v/4vl+x3TLFLnDczCc/ETSeAXpdrZ0BP2efR",
-	"AqSRO/AsezHuHP6wCbV53RSDX+bC4E4pxhXztNpf1Si4q5J8obmwx5BM6BTNMNqc3jUk5Za8R7f49MAK",
-	"CQE9o0tn+0P5vil4UW52S87o0cChXZ/GtyffPmOJrnS7ym5Usyt5K9ISbXWi0mgjovedfdoTP8sJr33P",
-	"PgbGCDzMo4SrVIJcspI0+SfATp3oXFhTcszLQpPug59Bo7kC2o4Nowc5k28E66IiBKeOLLywRIEkseLl",
-	"3sZkjKjRiRtlGy1zcwWboWo3BP5eX9rOKfgVL3lqJR8FJy2TBkQizUw5g3+US9KNAzrTLhf5WW1+h7/3",
-	"ryxf5Fcuc1CwEsbURSuGEszmy6KV3W4P3WIMgkcOF45mhEZ9kd76qGzfyVRrIwyS/2IqTKVwR4xnRldO",
-	"UCs00BngCi0yR4yfI72y/rXqIFp1/VzQeUwbs/LTvfV5BUPl5g0xNuz8TyLXoylXaWY3eflwwSN1YmAo",
-	"acUmrrJLkYNdZV5Y93+u0zKBayTVWCpZCHc+j8i04NZFCcZzbcT1wRmUaUsE3At6y2JdVE8Pdrq/pX1O",
-	"LAtPdfvqt9EYJ+233cnmMjbU+2VuUlM/6+we1am6wwY68G6gQF/2opk3S3ih2QkcFX31XCOq2VxqemJg",
-	"ElnSw1qNsJiQrx7rPLnestWw+6yIQJhp8hDiIUUVanM99Jwb2RrisrDhASQgmCDWVypwgKamlfjdyD7k",
-	"rHzXc+ZyNuP5grTPucyFWa2qS1Cg+AVRpESAGF3daIjFJmcJ4xPRcFRoJVYu4AqZL9DquClGYUDg5nTp",
-	"u/CtdtKUcQxTCNsH06XOPXviRVyPVGhztyw5G3AH3GmIKLArWOG2aQV7vfKcP5Vm24i9Gx+gLQyMjaPU",
-	"FCCUuCpGyQqTOJnKneQHj7J5dYSsDgGrhV/3rz8ybVsBexCOYpO1fh5qq1vYyzGajYeGTrrzPE3NYYAg",
-	"QGbObpulrhdZF4nOKC9Zl0WiZ4J0DG8XHJcqsXAc//ovKEpCIgYpH0MlTCFnFr5AJVOdm8g7bbxvnFnf",
-	"eBXfUIvFAJO5ixA6+a4yfSZvdpxvX6R1vgwa4QIcvqnIhyq27Y+QJ0AEb9xnxySZgGBjipyjWghLRWF/",
-	"3nJs+kP1MhfAOZDfI2MnScjKwpCjXCCqx4XAUIa5fxzts0PVjYk+xRA6o9IRPgkTj3utngBaqOVTiiYr",
-	"CB4EA5Ie2xX1NkBQvrr4K0w/R/ndpsDCc7DwoAoY0Tu0pokIbSd/V6YTsnKuDg9ctqlinCMRwqWn4Tfu",
-	"L3yLQUtPRldr0GuANaU5v8QMSc4yPWlsL7+Spj1izR5SaNy55FxERkqsP8vwLz/GkQvKgsRkCKFdds6F",
-	"ADwj6537ac1qrdVZ7WHcmLDZUAhv5aka//JgZevVUd9QzS6mouDbPDtaY2W013e0ja2nQTGb613tbHj4",
-	"akfNTaIxwMhfKHfwqj1oW6+VtJh2YDs6/EKJJcNgBe+TSj5R2gCZOWI8+AgXoGL3smjgV7Cu0mTV1zmo",
-	"VbnWRMlqRBHtQfgAhccM8BEX9ETmmnVJx0RYW51RwVWESWG/njRaH+3NrGtJM9hnIw8W5m9IgpJof+na",
-	"jp2Jtj12lejlDZv2/ohWb0HOJzcdsw9gw71sTy/aGwx+/nO3sanodqotdW+39vHGtlHS3248H9KkN9z3",
-	"IJtnFPbcDmeTLZh7wRA0DL5ww5mS7rvKsN40O6Mp6ogN6D67o3YbQcZ0tpr3JlhKP1R/iINtWrGGwcFc",
-	"ul3REoFoPYfBhVpJUM+89bZp18e8BgSQ6rPjKswWAyvmBFoxIjt8fOSzXODXMVC6fhCPU3+6E3VcsCoO",
-	"m3J8No3JrMb8klo9dY0GPx1X7Qffnvqu/OStqrJt6lMtSuQWQj9qzvHN2oPQFpGOqgiQ5Syoyg2AD1mv",
-	"r6QAHYh+D2O3de5jk3vbiaG35rbdzmV6mz7Pa3Jfr6eZ23pzbu4wWfZ43NBlYS2sG5pzP54JNLQ1tpgL",
-	"6+d+jfmwjeI9lFnZ7rdwv7AxZt0hjp8Eox+CFHhlkXV9sPzvLDmkoMz/+39kqW2id8T2iMeQ4b1/YxSC",
-	"DeKfH4WhIlvIxNc5MfstsXE23fKDEijXu++dcE5BhTQSx6lNjSptQa5XS365INgk0aYhr+Dx1TttB2zJ",
-	"+w961YiyPqGTa42c1aMtP9V82BtBxIYzCN8PjPW2x8ZYg+zT9qvkD95mGtmKLdk8A7q2V8v6nTs5luNh",
-	"BxHb24GI2rQ1vuPIQkG2vdm8vrVLuT7cpvXYrF3AAGN1iyWsLtJGBozGdtXtI3ZOq3NPm8d4M6v7K3FV",
-	"tFjbyQMiyK5oYWNyqd6Auf1cF1MmFKB6uVWsvJuAzGAoXwsi8eFvG8jFc2Ff9VJ97S7dznhdFBT0FnTU",
-	"NJo0Llbb3rsAupZcAeA/NlqPN2P1TBisx+IUbQrKxtqNiInGh5QrgN8xREhjM42WW67YlGfjKjm+4JkL",
-	"xrFpa/XwvRiSCsbicuQvnxmNdT4y+zEkJuyaH/fJM47uczJzDhX1jMOGdFxKU/OLh8OouYswDbLqIa7H",
-	"8rdOshN1Woe1oRJhl/+hbRpNut+7hu2Pj8XlqW/+sc7P9lFt+L3gWTHd8q5WAp+blX5DByRdbDhk6vfF",
-	"HzpuCKf0cvP02a7aDl1AT1vOnbKwCVwFuZGRC8CJ7HZF9lzpHKKJ5plo5CV8ebBRWsLrJpL3IPry3vvW",
-	"RIUKx7vyANyMYgYa2OZs5xrPMGHBWb3Y+nGZpAsBIe6XTU6ymZRUD0NfqyVUT4JmgXtitjBruyU9wzeb",
-	"gHPXMIbG2avEezeO1mNoQ+O3FFirifrg+irKLTSaUVpKfK7B8RTgFUQszvSlTTIB/hH7tJEW+yu93W6H",
-	"XJ2qdq2iCK+O9FyoVaD0dmbSMDsEm1B1vgiGDw0wSsHqfvGXf/yfe4hb7/nkKicYXu9ld6Q3aycZHGbo",
-	"leBuuVnM5oUuALt0aTnDdXRruLxUXtDbBJBrVTrflsY4zNizWXxOanf72XYgn/JC0PHfDJP0JilDdCGQ",
-	"VzrsA0IhAQqAuebyQqQ3IxY3omtpoAmve8trzBsZepoie1BMYH2crnuw1c5Q0ZWqxdaNrLIJtqMtr6ah",
-	"vOQU0IznE0SugBbbhKZlsnETx4lxA66PCazWoUpC4EEkQyFcgn2AZ5mLcXe/3wR4rGm6plG1rvJNkpof",
-	"ikIQIbKOfVX4eBeb4BxRqlIzytcgPvu8YHGSy0ImPBuhxSWGCgbuPPTWQYg0tsi1kqzPaIds6729rw/u",
-	"7ewz946rPOEiVIpmtvvVKLmpy602uZsMx61FxBY3HsUqeCsIvCymYkHBlW5x0bF5OV3AivdXoGWJJHDv",
-	"r52VVaoZvQTDpPnBqt4UuyfTLa7TJye/Z3/cZ35wdP4idq9/7+c//9s/7J7duLO3KztrO/ER2xt8UIdG",
-	"Tma8XZDwJ+Pf/gHvlTscdKXqIcExtjPCCDXg7xumLAZvba5in8FL3+A77WF4//YPNhZbgXXGRkD3mjHM",
-	"1QUneWhVTHz3ciqTKbVo7wglq5wBPOOy5JB2aBuX7mO0im4sH/K1eEHPvItjKxHDQQddi8/WRKGtxIMt",
-	"QN7ohfY84VAv2SQq4Pq0TwSgsaZekI/sK1soS7aP88XGYID2lXrvK0hY0NyS0boRPw7Dn8gL0d4UgGXi",
-	"MR3xiRhNddkWXvbcszF7olNtQ07mMr9pPMeWCYAWzmrZdm/duDSykVSjsYu1Xpb8N3fV3cQdFbw10vON",
-	"wlr92y/s8yugwgLnVbg118Xru1E0YuL97YvCa7x6LduPSTMuvjrxq4nMDSKEycazOaWgjq6FgnTNrh7r",
-	"DQ06N6CLpOJ9IFmsmUiuMZ3XSeZmXDI06rxeFqUJYmDQf3C/30Kirrdwb0iKQOjLtJpYH2joQHG1wyjC",
-	"1xm+wOBFos0tuD+//urrg2srCtyIrm2uwK4heO1AkBzDKkCBpPUh5FmoRGlcfAz4O85FmCLqzIYeVxoP",
-	"e6/doPILEUt7bdopZhth9Ner9dK7fWvUDCKzVMwW7HfsfMC+YOd7P//56ojFtaRn+7v9yQeJx0NVfw/+",
-	"3f/5z1c//zNhZ3198OWXO/sQ7f18CXqkC7YDdS7yyV/+/n94xnOIQEiLiBmRjXcwkFukvQiCoAnDEorb",
-	"LUVEH7L4YJ7R8FL2BSioEOKX9na7e/Dxajfp/Xjei2ppuUP1A4/YecSSiKWvj1h8f4MmfpxELHgtYpPX",
-	"R1CTS5qaKggeNcgFi5hFTbQJcA2tNWHDcjC4J9iAUHakGmck0kbsvPabBVi0MRJjnVsfKp3kLqeHE5ay",
-	"XMI1iIbKfidYCucaEtKOGIbK51K4WirnMHAlJhQTSwXKqAFqeahSOR5jHAYiefciNqmPC0yVM1EAsOGE",
-	"/Y7tuZU4ePkUNjye60thDxb/+c9XP57b9YMFF1fzkeFFScvhH+ru4dKLH7t/+cf/ev7zn696kIyx4q2R",
-	"Ho+NKOjlBRzBFS24bVsMXrceROJplH/hrpNB/BsBkEl7u4sf9+PIO98wtYFmByCMM8FVw39GzXci+4e9",
-	"Q52o4y8OgGLN4f7ex/9iY5SkFExw6Qs74w3dV3jjn7qhBJ9euOHgd38MxoRfPNZl/vKp/yQvRPXppR0o",
-	"fnh0NT8LB7v85Qs73vdR5wXWqWrLQfp+qlnOnRndeZ6O0CvmWYMrlbug7FtEKI7/Y9xwhW1ayrbuC/uP",
-	"6Azb2/+q3Rv2oT6wv07H0jp3UrgiVeDyzdyCt5NzuQ6RkrxVdRgpsE5sChOFMtvmkYb0/I3iDenV7YML",
-	"Cbn9JiflFN9sMzusiH1sy+8bNTwG+GpjIZqTa6hsbgbXpAYuDXzrm7jO/FzP7yAJHIhSWo9TXEJBR0ZM",
-	"KOhVRoo1czj7MHxzqR2YTy3Nj3VjPjuXk1KXZgTvxzeFmAkdTBuc7BXgVTF6PymHCdgeOj2rj+KqyPmc",
-	"ajPDZ3o60wSA7T69hZ+ceIF/a5wbCPRVy/VpD1XXIl+GQAOtSwYWn5rYdYjWoKEKoJV7EYtLZb2QI+fm",
-	"BVZ9hvBmzkFoz17FXBKe5wscMW6t4/hKFyNnU4ZtiDGAh8VEbelAusTGbSO5lx6Tgcd+rfLkngveCTLU",
-	"Wl0KlcsbjGf6vOBSebyQeCxFlom8HQ0EhJ3RltkqzkXWZniDZ8BW6KOKAlAJTpkY6fVgWw0Y6+VIG0hN",
-	"uMJ83CopDZ9tDWdwZdLcdQoS6uGKu9Te28hikWlLCks7KvcF5qc4CAq/qM09CajA8olYT1Ot2LAdTf1r",
-	"cmqvd2W7cqzLaTmPT9iDg/tfMVvmlZGzwSw7Olf58qhADzpTsK6+zfeWHt8mQp4xF9qGdy1dvFUgVI81",
-	"RsrzTNqquJEtzdpS49aWCtk0+Ram+hhebiVbqko6XFm6ls05YeW1xFXjA1asWlf7Nv7bHSt27zwBflNo",
-	"9rbUha2jQrSeSv7cHwxWVsooTXs/v3/16iWjBxADqxZ4fL+GOn4waIXVK2TRBkB9NtV5wQzlOjkq484P",
-	"tNI6VPpiOVDw29MnThdauFCJsDFHu8tcHSLPeiPEXOSH9plDe0LifqepHq0X7/BXN8cgIWSNt612cA5/",
-	"2vCCvHJFUKSr6Nxfmckg8vb3G0f+kHH2n85ePGcv6SXgepoQFHS6iFi8i6gHu2Q+UfiPsJ8SnZUz+1U8",
-	"VHA3T86+Qykupiek/fXQvs5nwj5ubSk+j5sEgvXr7OZ13cpW+fBbCr4X7TmyJ9+x7m97rUywLb8ZC3vY",
-	"h4vFHOMhVMDDXax2wa4qITmvGV4NG2e8uKF8e3UT6PmrTuTm37aqpy5VfxuQkVAWjar1scHy9pi5eHky",
-	"L4kUowARSquq5MrZecbVmxDkM8h4LwSWIek1NI7cFgEnLJz6Tn9AnOTtxwK2rjeeEmG2zSia6bSt5D0c",
-	"up3LXBYipuuJX2iVLWJ2OZUZHb6UFxyyUmDdOC3/+QINyrlINJpTu9iIYVwZiJ2/P7hnoQJPwcS5cwwS",
-	"YdyozlJ1biUy7HgL8xwsxvf2fff5BTZRZd+YVRySp05sNqw71YWbl+mxjE92bOXGAp8k7WaiWaFdzBeW",
-	"cOM3wF61IfrVRl6LzbEci79NGL7vaH34PflEVpw5LAUHhpa2MwR5y+h+5ll4aCxwUOhJOoLzBW2R/qcx",
-	"MrrAUkm+FhBIWpQyUsUeUQKlQ7WqglOPWAyHbCqyNB4qd78rWukStSPbQsRKNZYFRWrpnJlyLnIjUhsX",
-	"xodqo277bhouv8jXkpPJtH7Eg7WhfHc7eXA92ZFvvI3Y48tag/bL07Bd+933vnncwcaZ2454SDUqzRof",
-	"Il0RvB6wn0pfrgit5pOREYlW6Qrf7ZjndCDYuZhKj/ckQQrEgHE9riC1MJ+2HmZVqjcKymi3F8RZW5Dc",
-	"J14tZ1LJgk1EQfYpnGm3VDmoCbDiEVCLqhoY2ksIH8lTyohAJHlvhSyPe7Pc9UttXddSsZ0dR4N3kFCW",
-	"eWYZ515N5rbJLJum+rm+I7fF7de/slcsZzEGVclcWmLXOoy9e4zsAcSqE53n5KnrbVNTqZ7EuLP829KO",
-	"noZabxMoojKXOFTSD8LT9ku0nc8AB1lmNytmu8YHsE12c8Jbr3ZQ/xbrnpA7o8/TWq1bRNLwn0PiGaM0",
-	"Qd/7VO12o9gGEejXxyJv6WV4I1Vaw/rCmVqkr0KMkinIppvTZr+LJ76h4EvknCeuSUTbEhcSDLfG8dTN",
-	"omxqnHgFXi38ZnmWFXzHuBW2lnEL/uM1KdzE6fxINx+f80vYffHbKlXx5UFr6YotQSnwUI5WmICNeLue",
-	"pqLGICCrRSpYHUTiBZmVAgSwGnCNRK0e92beHhiRhdPE8+cuX3ORl85HmPHuVzScfwBssdalVLtpK2h9",
-	"mRWPhUg/AlLnlpWcQ1rZVsaDm9FM5ytiO9fCeL7khkr5GIk1nCxqdQ3QE2O7G1ljK/bZzqveaTDAa7x0",
-	"p75QwJb5QDZcK7XwmBGbe8SMRDQlY3i0LdlkgxLlQXFwDFC+hRLlidykdgytzEP39Bqx7XkN87Ye5bwd",
-	"BKsfW3AJr8GZaAwzYDNWy/EYUhvzF2jw2L9Mn09tE++rL24SX3Ebi/+hYAUBdEKhXV1YH7JJEVfW9V0V",
-	"Seuv3qvWXSkz8Z3UWYXDvAV1s0TVrAEfNeBI0NkFKJNSUZbkdlKk42tNymbPyoqC6I5YQQVBZisrRgyO",
-	"tv8prPbbrpnltgzkNeE1vmJkrSz3+guETftJ+PeiYFHbt0ttXesvLxWQ8ar81i2AoN0onmaTymGuJN+2",
-	"xcJukDsy16YQKVtRf2RLwOzTUlElxpaT6mawIoioAGYE79QWwI1Ohfh7f0eUNjEXG9e8BBj9GS/AadGJ",
-	"qs8nZ98hjbwp5tvmftYqbmDbd7ZAidMrAwE/gOdtHy13WgZhci0GSzTQb96cKwZ0bWLGduBtNaA1v3L+",
-	"nK7OUQnnUC1OVAGyr5fgSuX0wI+Jd79snMHf2FzkDhRlc4vGmlu+6U1q27rNF3Cjaq+3AJdyxyCI24Yj",
-	"rkcTWEIXXLF6N81OugGD/JjUMiR+697y0dIfQtl83lXToreW3C1fQqEgyD+4hOjjwEDaja+jo48tY7q/",
-	"XWCyp51rKGU1oZXHy0fM3jF12zY2N4wmbJWlt7AwLQmy1sSyYbRtxSJvz7KbrkQD3VvF+jcIMVxhQavF",
-	"jW1Te+96Dt6GjxLMbu1y3gjy5hPgDK1i7X5sq1/ZiF8XxQve2gkHOhKo6lR34PK21bC1KQ/r49KPW6NR",
-	"687iCb+gssIIQkGByRgreuNg8psAZNdVu3ZFzVKvDyoHWhVMWY5bSkCF9DU/V9ObV8uR/R+EQLwhqVoR",
-	"dP+K6gI56DB8ChTh+OWLs1ds92JvF/s1uz/J9P1u9aSJIx+e7sLVu9WxoGqDShfgziTIoh46tpaC2SH4",
-	"fipcLe1cjAMAD3IxHrG4EU/swwYWNwx7bzMBw8X+zDCZor8cp4KOJ3R12LpNclO/xi2F0d96HPx6Fbke",
-	"nHEnXq3b4Iu37O5aCuK/CTxP6Py8xnxFi2L9jZrg92jFXXgGtrK5YesW6utGFIPD4tpP6MCuLY+FVPRJ",
-	"LQirKNWGdTS39rvVpetQ4tksD2GbDIfm9QtzHupOxsY1adn97TA8QtHir1E1WHe/WrM7t9IGqHdzM8V8",
-	"Wx22iQ95Z6msZ4me14qm5aUyh1VMJy7NIZxyb/s5rEqqpDOpNjTvYkenpTIu3pO+oA5OqX38Cs0vxldY",
-	"we+OqSMYbwXm1co//+0fHJkhFLTu6X7Pgv2xpy8est9VkGtIQp6++CP7XQWKBhl8EOUE5aAPsZmzh5XX",
-	"tIrvdqW1MJy5i1lzBTi5hsqBdFdR0WOMYI4pONpCSmPzZvcv//g/EaCiaxzaRjwEeno5ZDpyg6pl6zM5",
-	"A8HN2Ojornhb8mzo4v0DBDIXZUdvirR3VC+Bfdh8wdaCPHtYH6YeI7m2IzhyVaNRhLKQIr1DVq1lENwJ",
-	"XoMpX4bgBhaEoOH4UhDYJTJY16X1q8dpQv+dqOM67ESdxvONIsMbHlp/2o6p/eqLb6Cns7T23VPskiBB",
-	"67+c2q7PKHzIW8tvMW38BjCg66pU3IXloOKr11WvWkGsaka0j2BAWFrUa9yrwcPh8n5Ua8KHLjI6+Zdd",
-	"1bkQrIBwmipRD7GXEnIqg7SY86QQuQdPLfh5hJVVSXMBapvwPJd8AhSmKHPVQK/Yd3xtBXzFj8Ph1WCw",
-	"A//9Gv7zDfznBP7zCL7cezwcXn31+PUXrSgWr8CbekOnzg0sAZtrBSuh7wxwvi2kI3i8TSxCP3I7tzQi",
-	"yUXRZ2dTfakY8g44K0dMFizhyurNmGqBhqIN5WvqMXJYTXYi11ZKwi26mXzlFnEzq0p451qiWTRhzELK",
-	"qswyX+cXZ3XEDK6VVc3JbGJjEXmZyoIVOZdZ/0M2sJL0DtaJeaidvC2F/bmtEnh9A1rXPBfqNtkQRLjD",
-	"nb8WFQ76/cY9fMMwjWtqu2UeNXqDqBgLMQ0XUhfCrMhhLjSD1FLY8ZlUaVA8ShpWwJwgpy1IGmFuQSIX",
-	"ZOTq0nOyoW1Z+M6nVW60wC/907UyWBsdR2rAVe5ZIip5qZL2MrGv8lJU5tlLqVJ9ySCTJagJsxcNBgO3",
-	"IgSnm1HFG52lIPjSAwj9DGvcHvR04aLBtnEOhkFk17o62ivJVZsQ1LTyJ98fvNoAwyVzZ+wajbN+Rz4g",
-	"4O2DgtdmsNg3s0ap9irgpuXQkLJbZYam4kKSWairENFsb1UWqL9hN0W0FhZ4bjVeiOvBX2HoPAF9bwOO",
-	"iOuHk4YFCaPmwr5X7v/L8MJb1Qo6yzSmpq/yC/gjyrilS2OdZfrShDFarhHYmxxktoaSVC+MmOlN1ab6",
-	"wM9sL/VvnwR91n8JdKWln878aOo/PNWkWAVE6yNETmybtCKA4rcTTZeJV1ggAHvI/BtUWFga5+Aa+9BR",
-	"lyMZUtOZJERQfNisgPWUahRy6+UHbhYu015LAP07brc+s9NYhySlENvRZnBiyXOlmT+oN3XqbY8tVucx",
-	"7agNDlOyetaFEgd7tnGoSCNMdy2DCo3WNRu1g5D3ycFV4FF1CutnoDbXNnqExzi8HGWJPYc62mDnAd8Z",
-	"H+88fv3T1+93wo8H23zc22/HIvy21cVwzNDJgBapRKceDmQ22X0KvoPS/vvDfD573cRMvLe/Tuf8b3b+",
-	"u9c/7UX3VoznO55LrhLh0WW3QVHA9HoC1SSz3oVtjY1LRX7QRp0NdvbwkEHqEbPootFQme5VD9yyg5//",
-	"PONX3SuoXTGTqvdjskfZUPgRmzEznmU1syK5RIeqZiI4sl1Y9E6TxqzbWuugF3bPvmAJQOCSXa4hjQw2",
-	"xe7f2/BBl/+3nve6LK1BB5tuO9TfVRShkUCJOQoWVVotWFW2GvOWHWmyEfor3c21muTcuHLCG3JSO7qX",
-	"9KL99Bjfp7H7fM1t+d02bO4GpsU7jp7YhNtWWDstUVjjsciFSkQ7LsxvH6JTYPDzn7tjXaoUJVBr8+/t",
-	"2j9uyIKwwevAFz34zKZgixWNuOGwtk+9vYaB+pP5B3h+rbUZ9aX2nQAW++63D98xDtIrgDksqnX4zNgS",
-	"kbV6GhucTriIqyrtOUQUN54brOWtxRdUKTpL0qIFtMCl+8w4pwtL9EwYG/6zka0ukCAstbzebOwOcWOx",
-	"lu5VuLN+0f3FDDKJtnZVh+fr40XqW3eoTy5vVRhnwCzsky6GohFscS4wbxi4KUXytCBbBPryRYPMb3rx",
-	"lja81tDydK4xRyzd6WWWKZUsJIRjdJ+cfEeBVolWhVSlVJOYdU/gWxQgLJ0LRxRyStsQnUL7/uYs0zf5",
-	"xDdTOzBBk4153aCAyU0OUjjtzS009b29RjOod7HF1t4w82BtJUpn1QlrUW5VmXZdeOhz64tvYJg6rP7I",
-	"m+d93BEoCjcsEbK3AtBksEZGvTGj/Kh+w03IvuUQK/w3VMDjhKtUpg4VY4sTlF5II1aEReLwhQszSKZa",
-	"m1WZsGSXW9uMg5pzKOjLjUCxmrD492hFxcxXm9TsZM3a6FTuFk0DiVutUNCz8ddKF4EScRP7qy5EOyIS",
-	"rzrGrswbOZ+TNkNsGgGRjpjAamO6mIr8Upp20E5Tzkb83IzaK4q+++3po3duVUCi3Ul4lpQIn+0Jg1kS",
-	"c9tGd8NVuEn5msbdqJqoTXflOfGnMPLH2u7G6ntjB1hfv6eCm2KHbLDGHifTB6vB1Y+D/v2Y/eXv/3dX",
-	"ocP+TPi3zjF1vgBUNDQWkLjRjLpEC6K1LnSPs5mQKWeiYDzrR+w/9YfqZJrrGS/0JO+zb9hXXx2w7v5g",
-	"sN9j+3v3e/2qJD+NDTrc2wWjwM//TCFQAMq2ZNcIjBZXYKigY854kmtj6K4YVmgoftPFT0N19rDnsxXg",
-	"69o0epEF+ID5+uK14Kg9e3hkEcn4UFXHSo8dMUHPEx48go3xthF7Y62nlxSNz8xQxUuVjfrNUCZfFbdB",
-	"sSi2KzjchIMcWGZMOYOx8XOjsxLxrTKC4CIAZHuRhmrlTWJ8ptEhqQ3WeaJ4WqVrBGimcwGBXRxCsbJx",
-	"a6Fh9igos0Px/wYr//rhG0SQtMsxqr6GkPzM6Oo2WyVtLK8wid1UgWv9pUoyrKuWCtTAFvUO2Xc87y7g",
-	"2PzbP/z8zz//+d3/8+d3P3b3//VfehH713+hZaFaQXrMMkXnBqpuMq1YpuDxCubNCaGwprALQ1XtX8Rk",
-	"IXJcVtwgzly4HMsF8I0gwcAtzL/+C6UhTPWlI98OJz2FbYiVVrbUVK/PALV6eZr2Kg2Vu0t4k6uRwuGW",
-	"BR1rd8TPHtbj4JRGS66lD/SX/byP/y789wv7mb43+K8No6ttyYZyt6diz2kI/vMTdXH2Ni/+tvHd0uf9",
-	"lpf+c+O7pc9LL9W+sFF7/jOW73kxfoazCinvi6pE2VYJVY4qVCeaWZoQWXLiC6zJLGtLpiIN2ZfV3bSQ",
-	"bdSp05w2T2vTEVl/Iap1vZYv1Qqy3d4SHTFu0dkzMS6YLgtW8DeY3uINGne6YI0QN4Ehtz7Mt5UdKCFS",
-	"Q4BslvEVGoy9K5hLl6PnNWfcUj/3ltKFfROi+ydQrWOo8GEaRT0IlsXBrA8ZtU1rhWIVPIzEYKjQ9MNc",
-	"wcZ7h4wDD7TRyJe6ahIYm1aCpWKSCxgzvCtEqmesCxvw4D77ra02YuZcGZgChTshf4Ld+mpg855q6lGg",
-	"Fe23Alg2Dhr64JMyl8XiDOVz3JtzwXORH5fFtMXOAF/rXP7JlsD7Bp+1heAwTMtikfcZBlWZQxZXce3g",
-	"CQoD27FuSy20HZ7A2Pb4iBkhiA5T6rrUCkD5r3bczdqh4CobjkwKBugSOKRKXJ4Wxbzz/j26Xcd6eUoB",
-	"aj3lXZoaMGepkPVn/Fzn1gkRWFE8849AkAIw3trPSyASEbkw4KJ5kSqUcVhV5RRkR6jqjFl2zAj0Aln9",
-	"KSJxEpuK2DzTVFAfkgbDZD6DZ8siu5qI/fHYAZ1Bk1zV4uaGaqg+/5xED9okl2PHC5Lj+p9/zqraqiDY",
-	"VXW5q7mgSwshnsEzDtueS+6yi0BPs/TFsDTnl4rux7w8z6SZipRNSplyjITEtqp1p8WBuRXWzkBpUxOQ",
-	"w+CeK5JwrMhz9uIl3tOhmuciEVju6chbB4GYuLVAwRXC9ikvdy5yo5WDLrbmwz57xJPpUNGGQlfVKldS",
-	"fC7mgheG9EsQPZzpJ8bV/c1v2IlWF0Lhd0O1Q1UCiBBTeiGsj1H8jRgl2Osr6b6FUiD37t17wLoxaWKH",
-	"zJtuYiBhDHr89tUJyFy6LOZl0WeVqQIPMaUVw/AwmSIXDDwLjGQL04cRUWEc+tHWj3zy6NGjna/uHzBS",
-	"/Eyfhm2jVKlk0XP+HBPZqObk4giGY8PsCEcpwJaXpoAAA/Ll4Y815507UxFQdlZXXLFquI/iy7Uueghq",
-	"Bppo7BQRzgzMWokMZ2StaoyInrEJpg7vmFbfQCWsFtZ6SNVZEX2dMWfB8U3BIiWZBqWdA5fNsogZyvwo",
-	"SKWA9Ut4kUxhF9WCeoO2CowBzmG8RqjU0ELgwUl1QrTHrxkRrHNxxJIMy4hCKGxJDZlCZhmTE6Vz4SZT",
-	"TMXClRKHWUYM0RkZKCw5s6nFhvE0tW/Q1uMJ1OOA/JnIES4T2YtlIqckIlmiBCdYCTyB1Xk7ZHvAZr88",
-	"YMdnJ0+esEwUhchNxFI5kQW9HfeB3o/gP4fwn504oilxqqxidQB6Fc4Xvsu6JGWwuDreINp/qyQmO0LL",
-	"NjYeWgvC43nu84vdhQR+Bo1Y3HKcE7KVoSJSGO9e7MUs16ASkgiyBQ88tlBicEmkQK4/VC7bhvo5hIG8",
-	"ow/sHUos79gk57DL74bq3c7Ojv8/PBiyU/Yu3Cv2DvHAiGXBRGi77RZFFrcffoQ7FdHDNdT2SpUFL8Iu",
-	"+gxspyHXZu/Y0yfPzjAmaOKKpb2j9ombe54U8KKoUfUscr5TlNGFsAlWjTLJ1H1dRmDvgJOZgo/Hrd0S",
-	"d6tYmznyuIg+auuI2XSx0BKWi0TnaW1NjB0BCSXsHcM/pCmsBvuOhFUkqdB96RgQjQK3H9sYqkc1WYZl",
-	"0hTE0Okg2PLR6UwSuyUFHktxwHUdqhbR55Bxe8LAugBX5vPPgcxoJT7/3NoWZmiBSWdkznQzwXp1MASR",
-	"MnEForksyBqTIxGVhYUkMJ6kwdOO6WeiAO4EHPrFXKjjl0+YkyQdHiWSMExdoytUzRwodiVkHrIfXgMG",
-	"gGvnXn9ALmdjLwUtFBqL4Ha8gJf2cXXhlScPgakqkRTWxmyAWB+7QLyIzXgGDJNKGBDNx1Nwod8Iu0Ew",
-	"ooPB3hGxLOm+tZwGhDq7UjQgfPpen8W7U8GzYvonoF27WFiC/pyJIpeJsanSu3ouFJ/L/oLPsnioUPZQ",
-	"2nbSjd3C4UL0HGF6hFYnR4WoZBxspGJLRcG6MW4VHdhd++0XAAMYO/z8oYpteSRnBGmU7oqxBxNbOaSt",
-	"ktchMAlb2QgKGdG3ID7BiL58MNhbW/UIAsOAHse7/sbt7u/Ws81ZNx52hp3YFXS+nOqM3u8dUe8nZ9+x",
-	"RGQZdLtxHSUoAhlbpE8IukvZfLowWEQIWkCrEgxtKngqcJnx672eC2ezHX2160S92A6nCvaF8VxXoMk1",
-	"97YU+eIQFUsYG9QqO5QpMb+YBnH4JBWzuS6EShY7fxALzPAkr4WVk2bSgHyrrJIbLj02RAK3NM6TkBNf",
-	"tUDd8a49as/c9WBmoQp+FdlCcaA9WR5P3DYIsQQ+ejAYHNHhIcIFlUhAAtqxrZ2Xrp4W41RgS4+91COh",
-	"AD5XTrgITZVO6BkquHMgf/hrS09E0J5AjBBZrRF7IxYoCx7s7wPfvT8YkPoCdGOohhRpDc5KPOjDDpHn",
-	"qQDe5irCxUfWQgkC4gQGUmg/ZpGD8RvLeCO1h86sQE2Rar72nDQ1KcOrVCQ8OlmgXl4OJOJw+bQSKMb6",
-	"qBsU/JBqv8EoXFR6M5kICwNCeVgdkF1zKQqeL4IacaGSSxGpxkJfQTChhYcDGtU57NzrD/r3KLZ0ivYA",
-	"R+Xg74loCwLFwkWG7UPeiC9iM891IoxBopXJC9Fnz1F8cpSv73ElIVwg7Rx2/kYUv7ddNfyq+4OBraJb",
-	"uHIPAcX7OwtVQgf1OtMUdUEWgcY8cJiwGvcHg1XN+HERcoviGVLqmjGlc/jDa3RXQfEV8CXJC4G1Y6JO",
-	"gRg8P1QzN1RWyPGMlYv8Mtdw/kVpKBlUXM0dID/pg831PaJHsEwQMk8Qb4H7FFDQFrfIYQIaVuSlKehM",
-	"Le3JMzuya/cExrU7z7hs7EYzFmpp4W0Pd7H0wbLN/DxWbkLIqVfuBHienbDidbWASoAH4ryUINWiRXCD",
-	"Y2+b2+7Yu0FusdDh0EHOcsOP2H8+fvb0Ltb/VajRrlt6Ep82pDHWu+WLq3H7q7MBWZYF/LLMc5zg/cG9",
-	"oarc6c1dYfFMpwIFj2sLuYFAWFVyYy4S79CWOOK5PQqp80SgtuYHiSPp1qu7sVIVMqtCdqBlAyR0ptEU",
-	"Qsw8YJ9DpXQhE2Gsa0pkY6ythcfDxIF2USvXFjE5BkNEZF1vxVTIHMowrbj7p7Qrd0iOg2Juy+cVuwcm",
-	"jOt54/MJb927/q0zWtpvFb/gkiIb1h3tauRrjrWHT1t5sj//HC3lh59/3jSOL+m9OnfqGwoWhNfCFPkt",
-	"xjIHeQlx8ylaNw4SU2I0Illx3oo+ip0vhiqWafhjnz2WGVpLEj07l8q6yo+fPzxiMRA0vCNS2fgtUnEK",
-	"HVv8FfguYue6mAK/qY2gz/4gFkZgWRCprPEEYl6suEB1W4YKqoaApT8oARJjiRH3d+W7R8A9Gu5R4wW4",
-	"phjZolVV9wyaBumQHoKJ6Dl/C+lQWjUNlamghBado7+ePMszntoFQVLiOo9IJxy03SIIbDxx0M1eXzCY",
-	"Ki9V57CD2oDL2T+sZ75udofCiLT3UXuzVQ7t7bXpcbJur0mfNbVZk7UUuFVtBsjPGzUaAEo3L+sjnmcS",
-	"blvtZEfVfcBcs5YxwM2pDWCTAMzl/gGdarl3cXVN74W+hb5fcnBIyj+t7AUV2lpHPmv2/iBwVe7XPJWt",
-	"pfbaZK76/dbjGtmgq71iYL6O0MaHyqBY8/oO+R6eXAx6buF7gH0NE4JZEg9A3newCe/7hqcukBhf2bv+",
-	"lW8VtyZtkdJLG3DLxzo/l2kqMGrzYP/B9W+80voZVws7OvMLcXPPv08ooUca8C4GPNzy69cQa9MwuHaw",
-	"8OMmyGx15o/YqXcgAVDVOrRBjCX4+4hLebesVomIKn5pIVbhVqQUQUbfjKxBgBBdMbkfjcC5cC2tEA9x",
-	"CZfZWtvGVI/Q0bfound7v1bpQFRc8Vd+pQYH17/xXBePMSHor/QOHjvwaziisjAU3GBjJNCH5QA97vp2",
-	"7qLDaKM7uv5OOnMfuJJESrUQbdROUNvZKqp5qSIHvIICvHWqBN4rNKDN50KRTrruJh7jFH6V1xGH9lSv",
-	"tErgMplPV/JXcCWDo4fuu8QSeXcD7WVadQO3uHK+ui0et7k2H3TxKBvRMA4aMY06orBhH08c+Blc3qqP",
-	"69a5nGA2kwswKaaOVVaImJlU5DVkEk3zsWtmpMfgE4J3fEOej7pcRPSmFOCVkMoJHn12altvDMPDmcIb",
-	"/hNorwh85AKGbHRkV1iyg20NFWYcYB6gVsIbhgrAaLc+sPa6zT1LgPzyWKdRPCfzwMgu/pE1bVmfvkNL",
-	"KCFGz6qaQ4Wlv7nz8bsYMVlE3vniZvuZsU+R+cwVeGfcDFVVar7PXjiwKmvXs+SUzumUS8USrgg5D5M/",
-	"WPdg8CAaKnRAxTbj1ozs29YFdopAIt2D/f2IHJ/nWKLcy0mVc9SzKWjvyEeyDRXB9gPw7bO9AaRp7O/3",
-	"Imt3CALYICjN5gkDse+hSzVG79bIbl18SGOgbcVoKeKE+K3fR7RdKOEySzxSPjZoD4sZGTR+w7YpcQnR",
-	"AgXLBDeUF2XfsVFZ9rDxDL5eUDuQY+N+GY1zjoEc1MxMm4LtQ6CqHldmS55XlwV8kL5ZOGoZnNL6JNwQ",
-	"El2qAuvIalU11bOjkIoyfcwIXF/hNGqhk8GDMS0fjqFrd4kZeRW5LeoRmJyH1aWewGw1wsDbkVCpGSkh",
-	"UovxHR/aycBwa3cNFgBeZNaJbPGD3QmfyskUPtN+Kp7nENkAv2BHMBd8Gzo8QhMUNGIjjWgsdgQRRrYB",
-	"4y5sOrMLsbicLigzYiKUyDmGPcX2rcqghYvca5MfiHI+ctT4AyUIZGPf6HRxa8KDH5ln+fUIe1+Kuya8",
-	"7H0cXSIEQCDfPfb/VCcrsmZf8mIa1gOmgsNxgzkiWE59itE6V8+/M8FpsIHgdKLVOLNgUQd7G4zpJV9k",
-	"mqevtH4KmaP03v1NFsCUcyrD8kykkr9aEFzowf7+Ji9bTzjIWo9UAZ6Ev1LR8FEzZA6pHIpYWDKFJK+g",
-	"pKQTGd8mtyEuzjNd9OdqspGSdgNDCp8JDCBEZwN2Zi4msZ3Zy+d/w+QMjIxrFLCXmS5ePv+bu1TBcAy7",
-	"dhVaTLrnUnEyZ23iDMZZflK6fvGbBQcn0LYiRqfozo0e7pTfwZU6q4KJvRjoU6BmPH8DmVcuocWjKEYu",
-	"UXosMWUD8m1VSgoDr8ojzLkSGTsXmb5EhYWupo+t4hQjg9FPQ6X4DIVMat9n4gRZPtC69RJdd73PvvsI",
-	"19tcTL64ulF0x6cL/Su90GfffZwLXQXcb2ZTqV3q5h1+spRSBnMq56zQANI2qPI/glw2O2FU9SjKhFfa",
-	"IQUy022ubjlzpZcYL1hcfR9X2htqV07X6/XZUhRmn72s5k6pOc3sNK4WLoULPfpT5OxjKn7FCxv4Dg2C",
-	"QxkWwxKFoxrO21DBA8Kg4kakyVY8hJBTFw1KyU9YG0aXhZGpqKW/i3SoSAPUOREyxsna3WehVZxSnTD3",
-	"vcr5s/1gxOtQHQwerNbqgkX51el11di2UuwGdzIA6mKVN9basOY+oSai0C+bW5anIu93Pulgn3SwO/da",
-	"hwkTmK7n8nsD9hJygQ15zBqeYvnOLZjon2nEybbkDTN/m4ZlVmgW23Qty5AcznZMQB/kWiMbWioSaz+x",
-	"9RNJIYWWRGt1EHaMTaONvKq8ixDSROoxApQAaMkIxytTGpiIPVHWSvT67LjGUAgWP9NqIvLlmWGM2IND",
-	"lGPhG/hijHimQ3WKZXlM6CLEJHGlL4l5mjYST7XabsMLf/vEncb2CxH2lRY7GhXAgXwi1p+I9Z37Uptp",
-	"p3fqTl3CtrxljZ4iG8JeqjCHFgUAI5CLeFVM7HcNmMxfYdDCEj7pCqW7tvCftO9f/t59157V3hrOsMY2",
-	"vaEaHm2iZtdAcFbfM/YkSOiHZodqRYq+Rcc750UypWRFKNkTdtQ78nnyQzXjLigJfawOCxZu6RSEpm5j",
-	"UNY1jhktNf8ugAdUJVbxJdadCY6mgdhvEsBx6KHyReotLMNsznOBkg2lodbzfw99Ms1QIQg8ol072Hds",
-	"4rcPr4eHhzhIBNM0qIwPFeKY/+W//K8Nh3EFttMPF3lU6Ezk3GJpxxEJiEPlTBE//9P+gP3WlfVh356x",
-	"Ry+P2dn3O18ffMmeYevs68Fg8DDEAqrv49FybAANC3HycpniGkUuTmyoatA3+LWLJXBxY8dViikurUOp",
-	"p/wHJ6aCZGtwa49dHYXa+YJXCakwxHqvIzcwF30+VLyAw0vRD0DsbR4Tx+XHOjhh4zq3LiJs9wjxMe1z",
-	"FJCAWDvGQii6XmzzDjGJ7L1hu9FQIaIIivm5JnQj56PHJl0hf54L7KnIuTIUzmCPOabr0sIdDB4wazJ2",
-	"NYHIxuPytEmCD2v/QD4X/jFSuhi53+Je5HWdKogFbhxXzMc+eX9Z1UgYoVI10bAG2Wen3IzGEkJZIPX5",
-	"EEE/wzW3OEbhbgZBP9Bn7ejjWo+Cc4uABpxCZVaYmL6rg5v/utSQNoDtjxw+0AaZv4Ek4S4/02UBF/2T",
-	"yvJJZbl70emUZATejgxUAQNtKEGFNe2vUWUCKKPdn6oP752OY0niHXn/AysO3nSK8gSy2fATOswKXhDH",
-	"cx6KoVL6snfoUYCFLwvn+VhBtn4kyPgudZf7cMah6ipdbMIsSJ6Chx23IV8qJYPajEWKHEdLWkTlknjh",
-	"UMYDZwLO6pLDN7RADgvdOI8LMyKMAaWJjaQaIUgTAl0ptLiZMpk2OZ4ZKmLGOktFzrQSffZ9A6CY2od4",
-	"Q+JqfCJGU13mFkMnEGCkse0ghjItIO1ERLXrCHoPB9ZnB4MDh2KIcaO5QAgNeBAN+Jc6T806l+8T9VhT",
-	"pZTt2Folxneuz8hcHea1TTrlMjeZaUrud9iBR2hOJP/UuRGqWJUwx4vt8wXvPJnHbcW6nJ5q6z9p4b84",
-	"K1neFbiq3B7LW1XBr2Mht+sWPzYsfvni7BVb432PI1JXQptYtQ5jyipfYi6xJQrxEnuBq4uYuEMV/80j",
-	"6npDjhn3LIYbrj5A93kQMnSLJG/c8FLT6lh/rpvjR1fGwVD5rApykazWESp6+CEO6ZCq3pG+0DbQT97p",
-	"T9rDJ+1hE5L/x5KDTLJYQ/tu1U1tsTY30gkaAn9GUAphHhiJqQ5m7nyBGUCr/BfPbNd3SACoi3WeBzv/",
-	"T+gAt++6y7IA8bh+VsJQC/vMyvO7jZMgFDHQTgrnjyU2r9Gf1L0+e6lNQUg+lCIGf+PDBJkMcW5VRUiy",
-	"1svCLJ151zRpjlfBL939wR7kXwkEPMmrqWM6YhSYWF01lioowzdC5ViGKkjBrIYurnhS2Gy+xrg+M8ze",
-	"H6IjQ+UGqqxwwjHMg0ImwBi6Pxhg5mIuDFmvfV0LQMAPDP1UvCFAQ6gqeJoQZsvb0s1UX+IUoIgIA/Pz",
-	"sTUAVIjtpZJvS1p7qUDAJaUWwkXWmE2fOfScuxBjqPFfSHCxM2uhWaSzJjxzxpXGzh/5HUYcCzKWInW7",
-	"TYPs6vHRtbP7p/MPS+5yjCQOONXuT3Bs/r1ld30SxX6FgYJ4eTw1iirvWyjyUMWobZlZXfqyZ/oWhLDI",
-	"FXXXHqYmTLKPVyOUEiVtg1cDr11l2cJ/7sbidszMXCRgMw/IWUDjNrC7Balz1Ygq3Ky9g68Ovr735cFX",
-	"18Bnvf5FaHslj34yvv3y1/+Fcrtx8/ttda/tPS7tkWPIzi3dqVAhKkGSfPQe0SCo2x0hEARhxDCpyIeP",
-	"JRPRtoEg+m/BzFWH0nmps8wDfwxVDSuuFWESy6QAFjfe0sMqzAVRMEAerr+D2NaX4F8womBd9NlavHXo",
-	"w5a/tDqw0TmDZl29sRhc9zOdi9i5KARiSsJXFg+HXYpcOEwGluiZreIwVI8x+AQEpfqIjBCufho24cVs",
-	"rRJx6JrFci1Up5XAGZDm5uRWETIPAySM7RdtiJzmBVuRU/CGwJoE1JdzOvmBIunL+776BT0mDSLiFkK5",
-	"roPuqBGEYAcn1SEGQaHIDygeGEPiko4w2KlPQiI4+ez3fZ5CjEZMP9goDLIY+xCLvotyilZ7Ou2T4a9x",
-	"D+FAWz1y/gX/UzgIROkvQmSVCvIEhg6n3JWD9w+HjkCtqLJFqy3iFBt6hJu7zAZvAqV4ZDlVNRS4Ae7R",
-	"sRDpKh6Gd2h7rMVbhZvcGwxWl8b72ByTNuexaI/6CKEe/zpAsP4aZWFiLXBsYZ3r4Wy1WGz65mbGyLzc",
-	"2LsU1HBaSpvWubXIALnrBhUGKxgqS+koCGCMMUJKVNUGgUKRjaKBevWZB0QPRG7HTysafMg42x/sgfef",
-	"KxNUOKoRdww5LJVNn1FB4TiqLAMVQGzkJI2sql1iDUI6p3hE1vV12iPECfJbywQU5otYoTXU5xwqfMj0",
-	"yDsFlc/IRxW5WmE2pjFM7KmnTB6ynF8OVcoLXgF0FdNcXyoIglhABG5QGYd1D66uetSLNz8FqFHnYqEt",
-	"0g/dd7L6HAaLzmalcXXvCNLQFLSm1T5V+FlHzowES+Jz1R3MV8bPRYZwgDw3yNOHqruEp2TYRFP5nSAe",
-	"lw5LcWnrqRpXII6K5/OhqoXiHrlLItOajSuoZWkrFf2GBaVqhupMgGizVL2m0GwGhrdcFJihb/hYECA4",
-	"to5XzEXcDBWVRkJJwJBgIWY4fACAooI3DgJq/4BhoAiFhVpT2mdosVMTkc9zSRIHZ2e/P97Zv//lYVgw",
-	"h/AX/eIzDtwvN4TVNlRCJdpnN7AuVtaWBZZlTSgodCbg2FvZya7ojBeFyHtH1NFQQc2isCPkY1XpIOOx",
-	"onJ+SZWVzheFoKJ8Z3wmoLZN5MDO/aQiknLdlH1ZrpTO3uefO2y1oWL+Qn3+OVWnKcpcVfPaH+w1QNVx",
-	"FCikOlOXrTGJj9W291TMM77AbvNSxGDBY0YkcCtgRSs3cn06zjxdhHM6xPI94YNBBYb6dD0BAL9SBvWN",
-	"ad62awxnggHDHthocytsuhYKORMYT+vQ8HOcCQVe65whet3B4AGCiNG86zUbJGgqFb7WWCpppjAeaBln",
-	"cVx1BmfZEicgKdDBfaAs/nWwW6Pm80Ys/NWCo9ONsbBKYi7iHtRrUota1T+o8pIX8GSffY+jPCGpZQcs",
-	"X4fMv1wh9A2VrXRl60VSGLnTdZaOZ0x0DETsqmOs3VsrMNB1DJMoTeyqy8SsS2WnedY7sogAcVOcim3Q",
-	"d9Atks1z4QTR7sFg0POGIzyg0rBvXz3e+RqKJ2VE+vDq7NB1BJAReIaKY6Y9CoQ62Pt6MFRdO3VIiziH",
-	"OWsPEhkPO/ERe/oYtujk9OljKgYmVAqwA0+lwqwCbeyBHCpfYBL6in8TO+wB2h5YCvjCvJHzuUiPbH3p",
-	"DNsJfujTvOiQU3EB7Nfqj7RhfXaCdc2M904SiqNaEAWyxSSp+BnWRqQdYe8qvQYC5N95EUhfLlWZ9JUm",
-	"30iFxR4XAuocxq6FGD/g+7GrjuiiVtzD9ougIOiKL/F1ZEjVy/ix/irp1PR0o2Sce8slidR+jthf/sv/",
-	"xgaNFnwVN/8yBg4GVZ/tYVr9w1D5RYDCYdh/1UvFPBszdekwSy+4H2yl74jKiQo2YF16hESxvR7Vktxh",
-	"LwIEx7nIYScBStQVWbe1TueofTLEHKxReIQI9NuG99XuQihxkj8ML6KjkIIX9Ubq29FzFlz4vdlDsF5d",
-	"+tsEpeqwm0YPwYr1+uxUX1pOa8ugAb/20g+0hL8i6cXgM7oHYb/SVJeCDLJqgbcARQR6sFYIuTQC6tRC",
-	"T6lI5IxnhL+KlekcXUMirJBKxXv9+2LnXtyj/CcGdK00XKXGgTdqLFbynD8HgvpEjX2IK8vkGxEWqSXo",
-	"MSqt61cEQUMw/UsqFGIsp8GqiPUSJkBkFwRWa2CSnxkGd9pTVjxZ9LoKi2OmpV3S1C0hkRruqmpWa0i/",
-	"21rNsI5WDq/YOykGIPv46sRcBTTNOiaA2BF8JibP40MHgwdfkiwU1NSzQK1zW2Vy4yKQdDzan497/szg",
-	"GhPqOKwxSom0jl1IIEPUGy9mU814S1iJbIF9iPkoLHgFShHibyZivgmnwTlkK2D0yNPIfW0RVqEpqJYB",
-	"b6DGgheZwFRJTLK1GUFhsfYrYbVH3yIWfyN0Pq12iJqQZ/HIY5byBUpC55oirFFlIudLUHPqM4ONUmGc",
-	"PIgBgCYsZi5ab20dRncW3JL3+/3Y7RvZBK9wFQ6HKo7jofqNlWWo44Dqzqe60CgV7OyxrmWtyyy0N1Rw",
-	"vCOnNZFCWecHjvRHniZEjsIMldvKSEl4XkRP96JB/3406A/2BvtRtPaJwYOv25/Yj/b6A3hif3C//Yl7",
-	"0T49cbC3h0/Q6XG/R/jy/UH0/c5gcLC/4oG9e/fogXvRvl3QFYEHp+X2aVqBxP8Hsegsm+vgZOBJ82Ig",
-	"sgzCk3aaMMZTrTDnfWAxoW1GExytikOvGtct1GPadGw+KwLNKrxKHalC+FeNMpDEb6HUTzVEL7nD6DQw",
-	"n0ZOzKoBOel/40V74V54f2eIJGUQyRt1nGJUb2B5IZDzUwH+lEgkzHkm1VOhJsU0NCiH2HwfL7/wtLwu",
-	"rTAvq2xCl5WU+9IxXZA3La3OrTY/VEs2nIi8UfYlyxo8XL3dMOuiCGJl2mwFywsdo/HAlXaUxuk9tje3",
-	"dug6VKyKSsNOG8YLUKA3Ca851zoTXOFh2CyiB6MnSofWnJfq3yVW86donl8hnqQ2BeP+Io9lEVzm0INR",
-	"roulDrMxW5wXW5SpWu3AcPTGOZ65MwAe4oid0G/LRzSqBpDZ1ftn6LuafzoXiZCY0FgnaKsKmN5A1jkt",
-	"1V0jy8CwVtPqT/Ezv4bKVNYfQIf3Vq/YbQfW0CP1IizOvlK/PTbuAixFvtrKUHmgVFsvzomhzoplvJdt",
-	"Oa0jKCZnwStsGX2Ze59gWAUH4qfboidcGR5qdSJBRkGN0g7ChS7WSsnUSyj4TGGwpNtU4KCSTBBN4e3r",
-	"p2GU0VA9FDnQlia8jaM0fzyJQk9EmdUSxs1QgYUISFbEGolxWEXGhjT5iiJDtdcPermsDXFl5vchi92k",
-	"oOLQfthEosssZTUna+Pxe80ePZCJVDZIpvHGQfiG9WDAYsyAchc6XzgHK0e3i7c8Ydp5o637/TAgsj3u",
-	"xiMT1dLlraHCngYC7wl8DzSusLeoCUWDr9e67Hr04mWkmVyQU0ZkhHiEdk00cgUANkP1Zbg4tRz6QxbD",
-	"EuCW8Qwm/1X4bJCaz7pe9oZzEZFfyWfn09SgVBBj7gwBvapF1vnQOTzITAZBWYDK5BJGLS2JVzPLUx8T",
-	"8WvkmW50q1gn/fyJff7y7POsjhhFEZ+lutVYG+Kl9hJ/eOANtRPQHyQGoTkG2of7yhuoa45smMq4B75C",
-	"DHmUhr2lpEhpaZpKRJOP1kqZWTQr5yyrLELdiruDoX5s/dRBYpfnFlWYobUwWz26KmBWRd8W/uZ81gy7",
-	"HaqVwUFsfWwQrGidREuzJFhc8mq5XcAhcdhCzoQLl/T+fif6I74bslphrO9oFUaedYAMVdBr1wgRkMSm",
-	"UAaOJncW7IZXIcSwDbIwIhsji4BcMhQSPQep+H6prg0TsiD5FmyMyp+KLLXRQ9AXItR77DbrWrNH48g7",
-	"rJhMazFBYZQOegugrQjkPOCJFp3GMT9Z+ADjKTdho5aVu6kRJx6qanar7ct2AT+Ijdy+AdCO6heCAbue",
-	"f3l5hI6KzGtFEW0Yzac8/k/mprvXftPUn8ZCB4anty7Bv5iK2TbcfI1ebDva/cn75N7fsmY8roISiFxG",
-	"jCe5NliAme6bS2O2ac4RqrRLivMRu4Z5+K4sI7W1QlDrlWmFzEnjIhgVxwAIYLIKVlghpRMVWymoL5MV",
-	"QHypTX2JsdlfvS+nnjPnR3Q7iXN3qSPU1+aTmvCrryjYvKW8cVpvTWHAkOINtYSwApIxJZasyLlKwSgE",
-	"zbCuDz/e2/+ancvC9Kq7BLYrRRHNxlZTNiLJRWGh6dC9VTm0VLY48lEWIneh5vA9ioQ2bHmoptxMkVSR",
-	"OS3TExDeVothr2CodwQvgG3/QnIU9n2NwxO3KarUHbsBAOagUET+tV/+T0LO3RMfvNuM02EJCI0lFRsm",
-	"ydLT3nWWikwUYmP6ciou9BsbsYUtHdn4qSrabbDXqwzSFqXFAnshGslQBaF7TpXLsd3U0iuSM9pIxUMc",
-	"riMV1+fPf4AQ8O23Tx62sv+D5dWiZfmUSP6rAASGrfjwa5ILlZq7BO81Fs9iBWBvPTk88NBgob6hAju5",
-	"P/8B7mJsMj2HCFEMHTvnRoRx+Vj4AHqxEsvZQ2yp8hLF7o24MvhXw4XnLqVK9WXV4f4AEs2BVeY6c6Go",
-	"RiLO7c//tM/OHrLuJc+VVBPKtPj5n+7hl2Sf60VURx/sRmdTcTnleQEOgrxg3SdnL9hXX3812Nm30/le",
-	"mGKC/nc0U+3t7Juq8Yjt7dyDCO39nX0TsdOdAxOxg509Upj2BlesS96jHtonBCwkJzditbCm7tkz5DHD",
-	"SKIQvfiogahPJo9MejVlqGLfwSEb88wQ7vCF1BmZ/QiPCRbLQ/YHCFVgyrzQGZoPMU1mLC5dnDEkxTU3",
-	"p5iK3NrA/KZDoCrtB5ozVZllFoaZupSmWoQ+O6YYXraH4bvVrMCmydMjBiFPKqHscAcAoMITgc4nRAPo",
-	"Kp5jkHrh1gIYAp5JvFbMMvQokA8xkisR0XKlCX2phuqPJwwZeVrmwlBoRq3GRMRyMSkzeKet3ES7aoqj",
-	"WcFH1oVV3g4cy8cAWW7rw89241hHXKeX/rWWCMxHGOEG9CM0ooNVAi38FyvDaOFg3EIE6FNetPQurq7p",
-	"vdC30Pfv9SV4lxfNOxk18DjqBDSiBNMiINKrRul+bwcP2A+xA/Zr0AH7Hxk6gO7TKmuxyCUsClxdN6PI",
-	"py6otCKNnyAFbl8sepjLceEkDpt57y40FvFBH5YVMxrMHDanznnvqjQ0SV13WeYdtW3opRZoQP3GjcDc",
-	"ii1ELM35JbnOKlkHpZTDUHawybRkhCVWhskcgtFphy9IJhqqQBSidfYRQa41FD3oVgi0aWfCVqKnuEPM",
-	"rs+Ad5+2CCMgruCo1zG/lSXiP/HATzzw/8c8UM74ROyai8kXV7OszgBbcieWmR2Shk9s7C7KSVekl8J0",
-	"kHZHjKjYLXMl6FskZQ5WQ6CK54LnIj8ui2nn8IfX71/7Dpv34UmQg11S3eugSFkQ8tGtlHHT61fnHd5q",
-	"SVt7TEg0YVvuopEHPghuBC5qgibpwZZGn6gLkRvBKnzzoE53PUE9bK96vK3RPx676jwwlrCmdR0/Uly2",
-	"vVyFINXBjyIfaBDE/Xi+mVS4SbVerHttqZv2uptRFZdUYZ00y7X41t8mLQ0T5jICB1sMQy9ayJxV8M5s",
-	"rjOZSBEuq32hrdWXT8iqFT5OX7Q8/RT8OsJ4ICb8cyaKXCZuWtKwVCc+L66WCkfb+vr9/zcA",
+	"7L1fbxtJli/4VWLV0zBZlaIoWa4qS2hgVLLd5Wm77JbsqrnbdDFDmUExx8kIVkRQErvKi1kMsJj7Ovuw",
+	"wH1YLHD3z3MPsKhZ7JsX+9rzGbY/yeKcExEZmUxSpCy7qgduoMsimRn/4/w/v/PDVqYmUyWFtGbr4Iet",
+	"seC50PjnibB6fjSyQsOnXJhMF1NbKLl1sHUqMiVzw6xil7yw7EyMlBZMwyuFPO9tJVtafD8rtMi3Dqye",
+	"iWTLZGMx4dDUpJDFZDbZOugnW3Y+FVsHW4W04lzorTdv3iRbU675RFg3jOOZvhCPHyyO4cVYsAx+vGNY",
+	"kUOXBXw95Xa8lWxJPsGG85VD+RstRlsHW7/aqVZhh341Oy9fPn6wBeN5nIvJVFkhs/nvxHxxIEcsKwsh",
+	"7XY2VkZI9lrMWYczeJ8VhnF2rlTOsrEqMtFldswtm/DXAn6BBStEPpAwRGEsM3wkDpkRgtmxYGoqNIde",
+	"7hgW9dkbSD9b2q9qvtFYt2GwtXXnV0+EPLfjrYPdvS8S2IfwGVbdWqGhze/+cLT93/LtP/a37/eGB9uv",
+	"fthNdve+ePM3W2G7jNWFPKfFkcbq2URI275DRfidFbmQthgVQieMGzZVxoqcXRZ2zAprmJ5Js2wXq05u",
+	"upuPQ+c47JOZXHam9Ey+3xP1Bt43UyWNwBP+Jc9PaPvhU6akdavJp9OyyPAA7Ey1OivF5NN/MDDQH9bs",
+	"8Tm9RZ3Wp/qUlyOlJyJnZi4tv0rYpVbynMEWM6UZZxe8nAmmZtYUOZ1HavaATfy7A/l3p8++ThhndCTY",
+	"5VhowTiTs8mZ0OxMlEqem4RxyWbytVSXko0KUebwijtxTOmB1FyeC3ZRqJJbgb9+PxN6zgItoHuTK2GY",
+	"VJbB0szhHrxJto6VHJVF9kFXDw+KMGqmM6A/xnIr2EjpswKoIv5IF7rDiUgxLS4KcSlyxksteD5PGB9I",
+	"+gmugJpZxtmosAnj4WX4gRaeTwQrqruNNMbYoixZIQcw/fOx7br1eITDyIX80Ati1WshWcmz14aJC9g+",
+	"k6mpYGWBN72QLL3a9ldnG38zaW8LqQicBF4+1FrpDzls3zET0HOPwTTOVD5nhs8NU7Kcs8FWUXtosMW4",
+	"zGubDMTiTbL1tbKP1EzmH3rdgTLl4ThWl0RcFcbiyJ7zeal4/kKpJ1yfiw89QFxRcZUJ4W6HEfpC6DuG",
+	"ZUqOivOZFjkri0lBoz0V+qLIxEvJL3hR8rPygw8455afcSNYxiWs5BnsNc/GImdSXSZhDkUmgMWb8cxa",
+	"IH+5upQJErTOCGnopS4sMv3CICvkMnOzN9Bi7s7Ymcj4zAjkg6HvwgwkEFYu87M58fymeLYd5LO2ybqn",
+	"dyJJDuf7QqmnXM4d0zE/C5m4Y8Lt0UA7C8PUhdC4Au4k3NZ0X0o+s2Oliz+KD3o1nxbGFPI8qdhlEpig",
+	"0sAQ1GuRszPBtdC0Ko1Jf/vtt9tHMzsW0sIoxaLAkn6Jb6fEKrhkKdKolHFrdXE2s4J1Th4ds88+v9fv",
+	"rhbLm7IdLd1Uq0wYA5fwobSFnX/IFfxWlOW2k1IKOZ1ZkgLOtOCvUXyelYKpUXwdD90KmBTJomFwbQdS",
+	"jUZC5nBFUfyoKPisFI5tvpRmNp0qbUX+VOQFf4Hr8aFFCrwSdww7pl63YRRwOYAKKdlQCxjPMjG1pocy",
+	"resDhnCE3wOxeQzLhmPP8wLe4eVzDQ3YQpitgxEvjWiOpHqb2bEWZqzK3BziSuIYSjGyIBcyi2oMDEnI",
+	"80IKVFNGfFZa1jFjEvbKkli/kvjgRNixyvEoTqNx/LB1xrPXw4yX2bBUl0OrSqFhBMMpCXbiKitnprgQ",
+	"T732SOcXTge3WwdbuZoBo0hAzaEHdvv9pE3ZJNkUtrzqc1LI4ZQbMxxpntEy/LCy7bVb/jAzGauJMpnI",
+	"ubFFVtj5kJfT8bWn8QgfepOQhAObvuF7IOsN1Wg4KjZ9c8Jlzq3SLfr08ViABHkJ2jQb8aKcafqXjtqF",
+	"0HmR2UP8oOxYaMO4FoznF4VReo56mxUTc91YsJ+v+UTQeK4e00u71fpyrTno0DNZfD8T7nfYLTcBUW48",
+	"66uhNu/3KMBRLsWFKI1T+unRe/F7e4uWF3pRD833M66JUb7D+VczWxZCDzOlXpth/t4m6/sxdoYK/h/F",
+	"++sLDBQb7veF0MXIcYxFSlA/9j/++sGPoHVHr5Dwx3XOOo+Pv9k5Pv6myyZ8zoC2Mn7OCwnKhzUDKdWk",
+	"AA0FdfYee+Co8F4/YRwkIfbylD18fsROv93+Yv8z9hSpMPui3+8/GMiMl8WZ4yhx93TFSn6mNF7VO8aR",
+	"b2aENdAxU5fOGvUeVvxN+Ead/YPILCxoxZqeq7LI5htytoeolQamBnxppHQmEs+3TMWxNmZRi1N9d4az",
+	"CWNZ4+3lbGKNl1uYxBpvtbKINd6rMYjN6XmNgreQ67VGUCPW67xRI703orDrUNIN3mrQxTXerFO5NV7Y",
+	"hMaBjEt0riwVGMNAS26leIZ18oiILSdfKEpeO8w3sebzh3ijGkej7cAuvTfLr2OyklisJgTNc1I/iYv3",
+	"sLZn7Vu/eIziC7ZyD1+1UWF/PJqOEFOcS2wIdAdc4N7WSh7Q792LeUCv3+/vtpyxI8nLuRXXUvs6vSaL",
+	"/fp+ART07LVWfHimeaCwK/d+64rN8sI+vPB65PpzqJhDQzUGRfiSG5YrKRImeuc9luqZ7GVacCvyNGEp",
+	"Wpd7o8LWPvPpVKuL+BstYJgiT3uLLp4ERqBaXIBAaL3uTYZf1M05NNTeToOKciu2bTERbc/mwvKibKcf",
+	"U65tkc1Krk3CCpmVM9TrubewazQtcaNkr9VjFW8bt1t+gslWuH6u96X7+ESdb7iL4sI7WNfiZNFpWWBl",
+	"jRm4ltvGesxnMDyz5PCQAdsAhS0MGkTIzHDgrAp4h72QGdlpHVkeyEwXVuiCs5FWEzadnZWFAQvp+azI",
+	"4eUW8ZFnmRZ5YZHQJOD2PJ+V8CP274TL02fP0bLAplpkIhfYFG0uO5uja4iXcGVzNhXaKDmQwf9cCm6E",
+	"84/6lV44XZNCel1vUVBAKWLD7YUtnFmRL670I3gcvGJk/cigcZapWZkzZ1f27+JqSZYCLxB5CpuBfeHK",
+	"pHQkU3JLXI7n0dE+U6oUXNavzcKc0abafqEicRiPAowIGA/aFA+ZnJVlcwZjDkdFoqPwEv+2YSLtFB9a",
+	"IUs+6QWr5b3mcRWg5kf2I+dAR7M6jSgXmfdSBgMBGgcuCyPcxGILweLircMtaiIm7VS02lFj5IppnYoW",
+	"wfJIt85WVrNMTQRep1YKauDegASyZB8xgMA/A1szEdzgnUW1MN7Kd96wdv5XjdCfuLBMSXVL6rKHW6qV",
+	"ZLda97boC/jRs6KIdk1RQzxgaSXtAc8jcS9NBjKNRD34pSnlwXdBUAM6VSgJ3wXRDBvRAn65EEMvug7J",
+	"BJ+wNEhq+JYwRT7j5RCkNfjCiWQGW5koqaySRQa/5LoY2bTHom9ZJ6wZEEF3YLrMbQKaxrw/2SogLHBu",
+	"MlvOWWiEPCywSpdKvwamiW73nu8QPU5+lxi3rJDnwtgDfEWKyxBuY0o1rXgDXUsu8TSfPggGefRZV+Ef",
+	"8CsnOe6OYXt9NlHGMiDx0g6kl0qoD5NUvu9vhbHnXOeMxBS8OIZ1jBADmf724Qu2c7G7Y7WQuUm7Pfa4",
+	"dtXZTJbCmJh0lIVB4wXjZiDDoibuLsLLwb6NV2UEMgUIN5Lt9lljnAOJTtbE90MNVFvVQaJO32pB3gXW",
+	"IJjgt0+D3jMs5DDnVqSeFNc3o6LEeiadiwMtQL4BNuHIlUtzGM36jmGpuJrCdQ3n1KSOjBZ2IOtDrs6X",
+	"0mEtExw10lxYQ2f3kbPJEo2qrku1aFGxHuSu11ayFSs+S+5WrAThU9HNqnQdHIk/+1vJFh5yIlL1pUba",
+	"JC+EPhcSKREIHoUBXWiq1agoRUSUHDlOtq62Ye7bF1zjLsAiIJl6CmFVbiHoC78a+OkJz14/Gz0qrP/i",
+	"q8VVwe+/5Nnr49rK4Ncnp2F16LNbolM3q4dugfDHx9EquadpqU5opfC7Z9Vy0XijNcMvHriFww++H/NY",
+	"PqC1w6+PawuIXz33q/jcLyIF68CFJ2tjGzX3lswsfhAEfSLvgYCAqnWNcrnbj/53jXEXgogKlDVbmOul",
+	"2jZFDpc+PEXaLdA6PIkXvDQJ6/fuAfHt9+7fv3+t4nv//v2a6nuvfVRWq/IJsFKzoa3zdCwux1yj7A6N",
+	"kFvdsM7j02fs8y8+72/vdb1IEAKQIPCgLKTotUgAbYrpcFycj9c0FLk3SnW55gu4/2LNhy+5loU832RA",
+	"/pV1R9SQedzw6u00BlKbdVJbtFY5h7bqZFa2SjoVKwThsRM+Cst42UvYcVnIHjsei0mP7X3OOrv3v9jt",
+	"sv37d7sHLN3d3jPpAKV2iuw7E3Mlc/b2T3vAtTtu3N1DePSuSdHVG565y04fHLJ0Dxph9lKBoCCNyGZA",
+	"e/xjge1ji3jeDll6sr1P77DolQSaH0h+pi4E+xSf9z55FNsxdPCS/eWf/2WPet7f3jUpG6mZZos9D2To",
+	"ejfuerd/lTIrZO0V54nGpzG0UY2CDFNnarBkW8kWLMdWsrVHn2A6W8kWjAd+61+tyRxgU3epBfjrrv9r",
+	"L3x3su//2t8Nz0H7cDJm2rSZYZ5N+fczAfGARlgQSozSrAPX+LP9ma6u9hQohzxHa2kUCHxvd2+tQODh",
+	"9qtP/6ZNJ8Hw7E3jCxjZpEiG6rFvg0gjOAzS1DVk9zCHQ16CrJwpMRoVWSGkRUG6LhyYlFTmTF1wXXCZ",
+	"iRT9w2IytfOE5GS60YZMVlJA69ANPgdkL2Gp0yJRDEvB+5wmrl10T6MqPpCgiuORaRJHIhNDblt1wEqC",
+	"A+3ZP11nGavsY7yyhy78lkVmn5W6rH8O3sE5beZpafOyxDuzOPHHkk1ULspt8f2MrP1K50IfMOA4XLM/",
+	"nPUTdrb7KnFfDJUuzgvJ/oDffT/jueag2brnEna29+qQSSW3XQPYugH5On0Kfzp7SceJyZKlUkl6thci",
+	"i4f4a9qtxQ2s5x5yVqR7bQuxXJw4bhEi4DickYaUw2dvEAjCxVpejmSrOvRt/frfQEfQxZXvON61hJm3",
+	"/9r5+//v//zHb/+++5f//v9++38lTKtLXL3oOdq52pLd2tqtXlgyb6++WC6smptAO2TOjFUb3bF8tNiD",
+	"F59ZLs61EAZWcKSFyNUkYRK4FZtGppvI9UcBUsMLoU2r4IvZLJEfnp4nAhW0QJgbhoiTuR+f39nt9Xv9",
+	"dtO9c8ored2FfhgefJNsjUp+btpMmZk1jJ9h4BcNhIbnTG9Secvb2hE4jwr7qOTnbZRkLPhFIYwlpfK6",
+	"hlDhOh1zjYa5Il8vEyOJE0tajabBl1tfigeFsYXMLN1f45WTEWkkq/KbnFns2pVxEj/cBtTfW4dHPw3B",
+	"NL78UNFDzD/Ufj9ASqgNfbdt6Eherxs5El54WrZdH8ffqwVjHTykoFwpKbxhZCbRLnLtYgZyfi3Hghl/",
+	"HZ4G660qWpkUhYgEa4oTSRK/UkozP+CEnWs1m0II79xR8kISMzdFxd7Wj0eDMT6HYbVdiFrcQDNMFtI/",
+	"RF4n0MBErNCTQhJF6cxIoXZe9xqL7d7QaI/2w+vmdYIPvYnsNCZfQVrD0ufioqChm85856qbeMn9z//1",
+	"kv2GSXaJ82Ym46W46QTQrXTtDOgp9zwahhRyB16Wz0ZbB39Yh9q8aorBz7UwuFOScckCrQ5XNYnuakHO",
+	"Xi3cMSQfAYVrDNendw1JuSWx0y8+PbBEQkDX78LZfle+byy3s/VuySk9Gnns69N4efzyKctUpdtVdqOa",
+	"XSlYkRZoqxeVhmsRvW/c04H4OU547XvuMTBG4GEeZlzmRc6tWEqawhNgiM+UFs5WnvKZVaT74GfQaK6A",
+	"tmPD6CIvi9eCdVARglNHJmxYokiSWPJyd20yRtTo2I+yjZb5uYLNULYbAr9Sl65ziu7FS547yUfCSSsL",
+	"AyKRYmY2gX+kz0JOIzrTLheFWa1/h78Nryxe5Bc+NVKwGYwJLehKCuYSgtFk77aHbjFG+SOHi0czREu7",
+	"yG99VK7vbKyUEQbJvx0LUyncCeOlUZVvwQkNdAa4RIvMIeNnSK+cA7E6iE5dPxN0HvPGrMJ0b31e0VC5",
+	"eU2MDTv/o9BqOOYyL90mLx4ueKRODAxl5bjMXHYpNNhVptbFN2iVzzK4RoUcFbKwwp/PQzIt+HWRgnGt",
+	"jLg++oRSiYmAB0FvUaxL6vnPXvd3tM+LZfGpbl/9Nhrjpf22O9lcxoZ6v8hNaupnnd2jOlX37UAHwWMU",
+	"6ctBNAtmiSA0e4Gjoq+BayQ1m0tNT4xMIgt6WKsRFhEH5COls+stWw27z5IQi4kiFygeUlSh1tdDz7gp",
+	"WmN45i7+gQQEEwUzFxI8vLlpJX43sg95K9/1nHk2mXA9J+1zWmhhlqvqBShQ/IIoUiZAjK55LJ2zhPFz",
+	"0XBUKCmWLuASmS/S6rixwzjicX269E38VjtpKjnGYcTtM26BtHj2xG1aD8Voc7csOBtwB/xpSChyLVrh",
+	"tmlFe730nD8pzKYhiTc+QBsYGBtHqSlASHFlh9kSkziZyr3kB4+yaXWEnA4Bq4Vf964/Mm1bAXsQj2Kd",
+	"tf461lY3sJdjuB6PDZ1053mem4MIIoHMnJ02S103cS4SVVLitZrZTE0E6RjBLjiayczhjfz531CUhEwT",
+	"Uj4GUhhbTBw+g8zGSpskOG2Cy5w5l3kVwFELNgGTuQ+BOv6mMn1mr7d9GIDI63wZNMI5OHxzoQcyde0P",
+	"kSdAiHLaY0ckmYBgY6zmqBbCUlFcY7Acm95APtcCOAfye2TsJAk5WRiSsC3CllwIjNWYhsfRPjuQnZTo",
+	"UwqxQTIf4pMw8bTb6gmghVo8pWiyguhIMCCpkVvRYAME5auDv8L0NcrvLscXnoOFB1XAiO6BM01QeMY/",
+	"zPJzsnIuj39ctKliICcRwoWn4TceLnyLQUudD69WwPMAa8o1v8QUUM5Kdd7YXn5VmPaQPHdIoXHvkvOB",
+	"Gjmx/rLEv8IYhz7qDDKvZyXXi865GGFo6LxzP6xYrZU6qzuMaxM2FwoRrDxV45/tL229Ouprqtl2LCzf",
+	"5NnhCiuju77DTWw9DYrZXO9qZ+PDVztqfhKNASbhQvmDV+1B23otpcW0A5vR4WdSLBgGK/yivODnUhkg",
+	"M4eMRx/hAlTsvrANgA7WkYqs+kqDWqWVIkpWI4poD8IHKDymj4/4+Cgy16zKqibC2uqMiq4iTAr7DaTR",
+	"+WhvZl3LmsE+a3mwMEGlIKyM9peu7dibaNuDc4le3rDp4I9o9RZofn7TMYdYN9zL9vyp3X7/7U+dxqai",
+	"26m21N2d2scb20ZJf7vxfEiTXnPfo3SlYdxzO15POWf+BUPYN/jCDWdKuu8yw3rT7IymqEPWp/vsj9pt",
+	"RFHT2Wrem2gpw1DDIY62ackaRgdz4XYlCwSi9RxGF2opQT0N1tumXR8TNxAhq8eOqjhiDKyYEirHkOzw",
+	"6WFI44FfR0DpelE8Tv3prWTLR+PisCmJad1QzWrMz6nVE99o9NNR1X707UnoKkzeqSqb5nbVokRuIfSj",
+	"5hxfr70RL0qRD6sIkMU0r8oNgA85r29BATpTbkwcnB4FDHc3E0NvzW27mcv0Nn2e1yT3Xk8zN/Xm3Nxh",
+	"sujxuKHLwllY1zTnfjgTaGxrbDEX1s/9CvNhG8V7UJSzdr+F/4WNMK0QgQoLkTsUhqAssk7IBviNI4cU",
+	"lPn//E8sd010D9ku8RgyvPduDLOwRvzzwzhUZAOZ+DonZq8lNs7lk75Thuhq970XzimokEbiObWpUaUN",
+	"yPVyyU8LwoUSbRryEh5fvdN2wBa8/6BXDSmtFTq51shZPdryU82HvRYGbjyD+P3IWO96bIw1Sq9tv0rh",
+	"4K2nkS3ZkvVTvGt7tajf+ZPjOB52kLDdbYiozVvjOw4d1mXbm83rW7uUq8NtWo/NygWMQGQ3WMLqIq1l",
+	"wGhsV90+4ua0PLm2eYzXs7q/EFe2xdpOHhBBdkWHi6ML+Zpxy86UHTMhAbbMr2Ll3QToCUMJaRCJD3+7",
+	"QC6uhXs1SPW1u3Q74/VRUNBb1FHTaNK4WG177wPoWnIFgP+4aD3ejNUzcbAeS3O0KUgXazckJpoeUK4A",
+	"fscQAo5NFFpuuWRjXo6q7H/LSx+M4/Ly6uF7KSQVjMTlMFw+MxwpPTR7KSQm7Jjv9sgzju5zMnMOJPWM",
+	"w4Z8Y8rDC4uHw6gnuCFsRughrcfyt05yK9lqHdaaSoRb/geuaTTpfusbdj8+EpcnoflHSp/uodrwleCl",
+	"HW94VyuBz89KvaYDks/XHDL1++x3W34IJ/Ry8/S5rtoOXURPW86ddLgQXEbJn4kPwEncdiU+9FkzwyfT",
+	"UjTyEj7bXyst4VUTqryffHb3TWuiQgVUXnkAbkYxIw1sfbZzjWeYwO6cXuz8uKygCwEh7pdNTrKelFQP",
+	"Q1+pJVRPgmaBe2I2MGv7JT3FN5uIetcwhsbZq8R7P47WY+hC4zcUWKuJhuD6KsotNppRWkp6psDxFAEy",
+	"JCwt1aVLMgH+kYa0kRb7K73dbodcnqp2raIIrw7VVMhlqPtuZoVhbgguoepsHg0fGmCUgtX59C///D93",
+	"EZg/8MllTjC83ovuyGDWzko4zNAr4flyM59MrbIAzrqwnPE6+jVcXKog6K2DOLYsnW9DYxxm7LksPi+1",
+	"+/1sO5BPuBV0/NcDXb1JyhBdCOSVHtyB0ryBAmAyfXEh8psRixvRtTzShFe9FTTmtQw9TZE9qpawOk7X",
+	"P9hqZ6joStVi60ZW2QSb0ZYX41he8gpoyTVm7htosU1oWiQbN3GcGD/g+pjAah2rJISORDIU4kG4B3hZ",
+	"+hh3//tNkNWapmsaVesq3ySp+YGwggiRc+xLG+JdXIJzQqlKzShfgwD0U8vSTBe2yHg5RItLCiUa/Hno",
+	"rsJIaWyRbyVbndEO2da7u1/s393eY/4dX1rDR6jYZrb71TC7qcutNrmbDMevRcLmNx7FMvwuCLy0YzGn",
+	"4Eq/uOjYvBzPYcV7S+DARBa591fOyinVjF6CYdL8YFVvCk5UqhbX6ePjr9jv91gYHJ2/hN3t3X3707//",
+	"087pjTv7fmlnbSc+Ybv9d+rQFOcT3i5IhJPx7/+E98ofDrpS9ZDgFNsZYoQa8Pc1Uxajt9ZXsU/hpS/x",
+	"nfYwvH//JxeLLcE64yKgu80YZhshrMh8eUx853JcZGNq0d0RSlY5BfzJRckh36JtXLiPyTK6sXjIVwIi",
+	"PQ0ujo1EDI+NdC0AXRNmtxIPNkCxoxfa84RjvWSdqIDr0z4RYceZekE+cq9soCy5Ps7ma6MdulfqvS8h",
+	"YVFzC0brRvw4DP+8uBBySVZnA8dnsUFnlUdxPvXuuDShYiPNKP9JQPEPLTpMrRgwzVsc/HetgVUAVIo3",
+	"aMjPxXCsZm2Rb18HDusuW65cNAzM66bwcZvlJjoosYUJeA8zjQwAgkY+DHxRKVnfi3gTT1n01lBN14q4",
+	"DW8/c88vgWmL/Grx1lyXSuBH0QjXD4QhiSnM8rVsPybNkP3qMi6nfzcIXqYzvz4Ro46uheH0zS4f6w1t",
+	"TTcg2aR9viPFrllvrrHq16n5egw8tje9WpTyCf2g37t/r9dCPa83vq9FJT2upC/RRkY4PZPE6LmEKOlt",
+	"NdrGJKcFgLWBpKIUnTREP6QUTx2jpyHJJWcvwsN1KnrcbUCoRaCI705lQdSG4nvO8xy7rfx8Ka7amxvB",
+	"zEgC5S04nb/4/Iv9awtV3Ihkr282WEHLl52DKceSTW59kMXzS47VKSkqCbxMZyJOzPXG2gBXjve4227G",
+	"+pn4gKMI7cygjeYHytFKz/y+NUpRkTEwZXP2G3bWZ5+ys923P10dsrSWau5+dz+F0Px0IOvvwb97b3+6",
+	"evuvhFj2xf5nn23vwZX5egHwpQMWG3km9Plf/vF/fMo1xH3kNmFGlKNtDJ8XeTeB0HOCRoWaiQtx6Acs",
+	"3Z+WNLycfQpmAQiszLs7nV34eLWTdb876ya1ZOiB/ANP2FnCsoTlrw5Zem+NJr47T1j0WsLOXx1CqbfC",
+	"1BRwxi1mKSbM4T+6tMOGrSBjg1m/f1ewPmEbFXJUkiKRsLPabw6300WmQPwwea7pJHc4PZyxnOkCrkEy",
+	"kO47wXI415AGeMgwQUEXwpfoOYOBS3FOkchU944aoJYHMi9GI4x+QYD4bsLO6+MCA/FEWACfPGe/Ybt+",
+	"JfafP0FwzKm6FO5g8bc/XX135tYPFlxcTYeG2xktR3ios4tLL77r/OWf/+Xs7U9XXUiBWfLWUI1GRlh6",
+	"eQ5HcEkLftvm/VetB5HYNWW9+OtkEHVIAFDV7s78u700CS5PTCih2QFK5kRw2fBaUvNbifvD3aGtZCtc",
+	"HIAim8L9vYf/xcYoNSya4MIXbsZrOg3xxj/xQ4k+PfPDwe9+H40Jv3ikZvr5k/CpuBDVp+duoPjh4dX0",
+	"NB7s4pfP3HjfJFvPsPxZW+bXt2PFNPfOC+/vO0RfZGANvgLznHKeEfg6/du04YBct0Jy3QP5t+iC3N37",
+	"vN0H+a6ex79Od94qJ168IlW4+M2csbeT6boKB5R8hHXwLhAV1wXnQplt/fhOev5GUZ706uYhnVQQ4CYn",
+	"5QTfbDP2LIk4bcuqHDb8NPhqYyGak2too34G1yRkLgx845u4yuhfz6ohCRwVg3p06AK4PjJiAtev8oCc",
+	"cclb5eGbS+UhlGrJlaBcTM6K85mamSG8n94U2Cd2661xspdAhqXoc6bMMWB76GquPoorq/mUSn7DZ3q6",
+	"VISr7j99Dz958QL/Vjg3EOirluvTHsiOwxuN4R1alwzsbDWx6wBtcAMZIXZ3E5bOpPP9Dr1zHVj1KYLK",
+	"ebesO3sVc8m41nMcMW6t5/hS2aG35MM2pBg2xVKitnQgvXa4afz8wmNFFCexUnnyz0XvRHmBrY6cKtAA",
+	"TJbqzPJCBpSWdFSIshS6HYNlIrgcbpgj5B2TbTZFeAYstCGWK4Ly4JT/kl8PcdbAGV+Mb5pOtbrCLOjK",
+	"IIDPtgaR+Op7/jpFMAZwxX1C9W3kDhV5S+JQO2z6BWYFeeCPsKjNPYmowOKJWE1TndiwGU39awolWB1A",
+	"8FyLKadNOLViuik8rmS8LL6fKevP1JRrIUFmzQWbTZlVGNKJ9R5VOZuIhGrz0gcgc5MnVV5qKOfF3v4J",
+	"0g4yyyk1uiVd1PU7nJQbVtFcZefxjVpVuoY3bACnertjoiZvOKLGgYgWbWGy0eAbnbafG6oOvZhE9+iY",
+	"3d+/9zlzVacZuQbN4g4u87xTvTB0fWrl05adZIGqSIKyxlQoF4y56HZaAhn3SGFeCy8LV6Tbnca2ktuu",
+	"ctG6qfIw1Ufwciu7k1WK8NJK2mzKCdmyJQsCH3Di+KpS3Onfbzt1bfsxyClWMdhiV9aJZASqQHav319a",
+	"uGdm2vv56sWL54weQMS6WprAvVqNgP1+KwimLWwbXPzpWGnLDGUmBkrizg+00jpU+mIxrPflyWOvQ899",
+	"YFPcmOf5My0PUNZ5LcRU6AP3zIE7IWlvq6lWr1YL8Fc/xyh9a4VvvHZwDn5Y84K88DWZCl9gvrc070jo",
+	"9vcbR/6AcfZ3p8++Zs/pJVZIqwjvROXzhKU7iFGyQ2Y3if8I9ykDWu6+SgcS7ubx6Tco/af0ROF+PXCv",
+	"84lwjzsbXEBdIEFy9Tr7eV23shV6xYYK00V7RvvxN6zz626r8NSGRoB1htzDdj7F6CUZyX4+s8Kyq0q5",
+	"0jWDvWGjktsb6kVXNykUcbWV+Pm3reqJB9bYBBIo1mGSan1caos7Zj67hcySIseYXQS+qwpLc3ZWcvk6",
+	"huSN8CmswKpI3YamqgUVCyTkqvpOv0NU8+1H7rauN54SYTbN/wMbb4uOC4du+1IXVqR0PfELcPul7HJc",
+	"lHT4cm455JDBunFa/rM5OiK0yBSa4TvYiGFcGsh0ude/64A9T8A0vn0EmkTTZ1h17iR57HgDsy4sxrfu",
+	"ff/5GTZR5cqZZRyS517dMqwzVtbPy3RZyc+3neRp8UnSis8Vs8pHaGJFSX4DpGSXUFNt5LVIOouZM5sk",
+	"zYSOVifLkC9tyZnDypRgoGs7Q4AygBEZvIwPDVGsmgfyEM4XtEV2A4V5DBYrt4XSZCBpUYJXFSlI6c4e",
+	"g64KJT9kKRyysSjzdCD9/a5opYdVSFwLCZvJUWEprlJpZmZToY3IXRQnH8i1uu35afhswFDassjG9SMe",
+	"rQ2ecT95cFm6ka+9jdjj81qD7suTuF333behedzBxpnbjHgUcjgzK3zPdEXwesB+SnW5JBGCnw+NyJTM",
+	"l/j8R1zTgWBnYlwEdLYCpECMB1OjCgAPw7zqQZEz+VpCVf+tjXWqKk1yMe+xsOxcWLJr4kw7M6lBTYAV",
+	"T4BaVMUJ0c5GaGaBUiYE+cq7S2R53JuWODjlQh4Kyba3PQ3eRkI506VjnLs1mdulnq2bmOv7TvwWt1//",
+	"ys61mHMcFUn0ScQdF2gQ3KpkRyJWnSmtycPb3aQCWj3leHvxt4UdPYmtJU1Yl8rM5jGE3wn9PizRZr4m",
+	"HOSsvFlt7RW+o02wCDLeerWjctxYpYjcYD2e10pvI+5N+BwTzxSlCfo+ACu0G1PXyBe5PnNgQ+/U60Lm",
+	"NWQ+nKnD5bNimI1BNl2fNoddPA4NRV8i5zz2TSI2nrgowOBvPE9dL/CsxomXoEvDb45nOcF3hFvhSqu3",
+	"oLVeA7hAnC6MdP3xeX+W25ewrYW0n+23FprZEEIGD+VwievAiO9X01TUGATkoBUSVgdxs0FmpcASLE5e",
+	"I1HLx72elxBG5MBv8fz5y9dc5IXzEeNThBWN5x/B0Kx0RdZu2hJaPyvtIyHyD4Cru2Fh+ZhWthXd4WY4",
+	"UXpJuPNK0N3n3FDhLVNgxTWHMV+D38VMjEaO55J9dvOqdxoN8Brv7kko67Fh9p4L88sdmG3CpgHfJhNN",
+	"yRgebUsNCwg3y3MI3MuAxIvpBK1UfRMe5Ee8XimTB/7pFWLb1zWE6npOwmaAyWFs0SW8BhWmMcyIzTgt",
+	"JyC+rc1foMGj8DJ9PnFNvKm+uElczm0s/rtCi0RAJ1b5MtWN0GYXMlGVNOwt36vWXZmV4ptClRVq+gbU",
+	"zRFVswIq2IAjARCqcyr4W7TWmVmHrzUpmzsrLUXNSiMCsYJ6n8zVQU0YHO3wU1x8vF0z065o6zVhWaG+",
+	"65tQ+v5arodNh0mE95JoUdu3S25cmVPPJJDxqljeLUAW3igOa506f76A5qal/W6Q6TVVxoqcLakWtCG8",
+	"/clMUt3UlpPqZ7Ak+MwCM4J3agvgRyfjTK1/IEqbmYu1K9RC0YsJt+C02Eqqz8en3yCNvClC4/r++Sre",
+	"ZNN3NsB0VEsDSN+B520eZXkyi8IrWwyWFLkRyvm3H4nFsv/hYMC+5s2MV7LYrx9UVEufWWtavoTYtTlT",
+	"m0E+1uAZww6G+7I8fSyeQ7VJSVXGYbUkOZNeH/2QVTIWjUT4G5sK7aGU1resrKA2697otq1bfwHXqhF9",
+	"CyBL7xk6ddNw2tUYJAuYpEtW76aJgzdg1B+SasdEeNVbIdr/XShsSIlsWhZvQnaPVV5BIi+nv3dM+NEV",
+	"E5vwXAwkmpwx3nPnYnfHP7Id3u/22EOIn6ELj1BL/rc74OWhA0Tm9ADKXBVBx0Q32OX0wFlh/NsUfNr4",
+	"zhWWnGLEmissiSacQjICTZkWes64Hcg0OlOuGHp4zTl44A0XrObyL3vshR8jhtRWQNEzWQpjFhPRC1vl",
+	"ndcjYDc4kBEmZWOT0ZLz/Uy43531bkWWKBBfISE5KSK+OHtMAFibDHu+2HIW722WUBF45goOWU1oKVkJ",
+	"kf7vmattmlMQR0G36nIbWDgXFCln4lszS6AS0W7Ps5AvxY7eXSZ6rhEavcSCW4t33aRS6/WSWxuaVjS7",
+	"lct5I4C0j/BktIq1+7Gpfu8yFXz2gcgZP+dARyJTEVWpubxtM8DKVK3V+TRHrVH09WCFc35BRegRsogS",
+	"KjDG/cZJMDcpp1A3LbQbChz1eqfi0VV5rcW4uYxPRFUhejm9ebGYkfROePVrkqolyUIvqIqcB5rEp0D8",
+	"SZ8/O32BshL2a3Z+KPI3O9WTJk1CWo1Ps+lUx4Jq00plwZ1OAHeIy7CYhANJQ2PBqEIo02IUwT2Ri/uQ",
+	"pY08iBC2Mr9huk6bCwIu9h3DihzjNUjGw1wlcLW5Kn/Fun61W0r/ufX8ndUmmnpw0Hvxqt4GX7xld+tC",
+	"8tFNwNxi5/s15lNaFOfvVgTWSivuw4OwlfUNq7dQjT2hGDCW1n7CAIra8jgA3pCMhyC8hVyz6vLGft+6",
+	"dB1LPOvlT22SmdW8fnGuVt3J3bgmLbu/GaxSLFr8NaoGq+5Xa1b6RtoA9W5uZpDZ1HbRRBN+byn4p5ma",
+	"1kps6pk0B1VMMS7NAZzyYPM7qApw5ZNCrulewI5OZtL4eGP6gjo4ofbxKzS7mVCPC787oo5gvBX0Yyv/",
+	"/Pd/8mSGMDM7J3tdBw3Lnjx7wH5TAXQiCXny7PfsNxWEJmQeQ5Td0OTpATZz+qDy2lf5Bb4QI4bTdzDb",
+	"14KTdSB9SYcqKn+EEfQpBee7AgTYvNn5yz//F4Lf9Y1D24jjQk8vhuwnflA1lBFWTEBwMy46vyO+nwFC",
+	"lVVNvEof5UlviryLEcWhUrubc/SCqxx8+qA+TDVCcu1GcOgQNkny8vhXB6xayyi4GJwTY75YsAFYEJaY",
+	"wJeiwEJRwrourF89Thj630q2fIeIwFl7vlGSfs1DG07bEbVfffEl9HSa1757gl0SgHT9lxPX9SmFrwUv",
+	"yS3CXdwANHpVTaP3YTmo+Op1tQ6XEKuaEe0DGBAWFvUa9370cLy8H9SacFuL/NQZiW/1jObLfqAc/eEo",
+	"RE9tDAt7Kxq6uJpyhHmYyUxoywtp52uOJirHv/ZofBTtOpZjvx+/g3dWXt5Stdf4m1aJ6ZtAvNSS2d+0",
+	"1akmN8BGMw8vAZtcpuFRJdLGVtR5/qyDlojuDv5TMV14hWKpRVyl3s9lXXTqGRpE2gvWhdT6NQ/I8tqL",
+	"Hqx9c7j9XFSxsAtaC7W7ZCXpmERTrJ3g+mHZUI1oO7C13KuR0EJmIrjZYBhWZa+HRlUqkyuFj5DYjfJn",
+	"K9PaXJsnvpetJHx3Cp1En59Quy1jvgm2bOwz3Mgn5Du9Hmc2dLHOur9zfaP1TJQxA1swVJ640Xt/n7/2",
+	"UOrX/125I61zAXo34h3Ti9nGJnx7gZ/cEnTEMgbRYp+tKNAdw/x7LHqPvUwoXr4x3BtkX/1szOcWzggu",
+	"VnXbma/8hv5i76g2rLNAERBdt9uLWF4E4bfX77fM+ZZYYKWL7/XfF0Nc/7THXOraFahxretObQ09hieY",
+	"qyY4loB6iWz19Q3OqueDa3pA4On3RFiWVElprAP5Og5ZKUaWqZn1AAvNXjYES14bYabO5aOb3sYEMER8",
+	"MdBZC8GsuKKxE8wLIj5nFJIMtl7NMyt0KJRj+VnCykI6vwNsdsa1Lvi5YFrYmZYNzMw9b5VaApr53WBw",
+	"1e9vw3+/gP98Cf85hv88hC93Hw0GV58/evVpK3bmC4jFvWEo3g20hPVt+ktrCRiwW20gC8DjbdI1RiEv",
+	"if4UmRa2x07H6lIytPyApnfICssyLp3XCxP10c27pnWcekw8QrSbyLVVsXGLbiZz+EW8BWYCILBYTwgA",
+	"j4oSETqraO5DZnCtnGONnJ4uk43P8sIyq3lR9t5lAyvesL/KSNsWidQO0e0G0rrmWsjbNCJBfjTc+Wth",
+	"9qHfL/3DNwzyv6aOfxkqhK2RU+HKicGFVFaYJQhYVjEAJoIdnxQyjwqFF4ZZmBMgokSQA8wvSOJTVEBe",
+	"o6q6pHduFk8dQHnWWuDn4elayfO1jiM14Ks0LxAVPZOZp6UNwqJnogquuCxkri7ZWJR5VP93N+n3+35F",
+	"qHRSSdWNVZkLY90DGPYIa9yeMnPhc4k2CemMU5CuDVSqBcgF7bjahKh+eTj54eDVBhgvmT9j1/iL6nfk",
+	"HdKl3in1aQKLfTNfsmyrZ59smZZDQ66qKhw2FxcFCfMdiTjqu8swhMINu2n1MuHg7pejlPoewhWGzjPw",
+	"1qzBEXH9cNKwIHHOVdz30v1/Hl945xiBzkpgFsujesIRZdzRpZEqS3Vp4gwf3wjsjQaZreHiSLb00EAx",
+	"BEHukHWdHvWBn7pe6t8+jvqs/xJ5OhZ+Og2jqf/wRJFbJCJaHyDefVPIAwEUv51oehwX62Dk3CELbzDl",
+	"apS58LRRSDz0CDsxNZ0UVIcEHzZLiokUchhz68UHbpbksFwjCmfyjvEa0XL8aokVJRz+z6iwCVz1cFBv",
+	"GpK3OaJ5nce0Y/75ShbVsz4RNdqztQO9G0meKxlUHHJSizDxltsALVWli1SnsH4GanNto0d4jOPLMZth",
+	"z7GO1t++z7dHR9uPXv3wxZvt+OP+Jh9399orILxsDRA6YhgihP5k0HU9mOTkfOcJRP7M3L9/mE4nr5qV",
+	"Gu7urdI5/5vt/+7VD7vJ3SXj+YbrgstMhJo2m2DwITgblfIgp/yFa42NZpKiGBs1VdnpgwMGajxzNU2S",
+	"gTSdqy4EVfbf/jThV50rqFM6KWT3u2yXbIP4EZsxE16WtaAACmgcyJqD79B14WqGmDxlnda6lt24e/Yp",
+	"y6DwDnnVG9JIf12H3O6aD3rT42re6zE++lvYdNuh/qaiCA34HcxwJ+LE5TzKPKGMGUeaXH730mDRmN9O",
+	"uYGrOKrjY67ipG50z+lF9+kRvk9jD2g/m/K7TdjcDQID3nPs8zrctkJqbcmhGHkPUiuq6K8fYEhP/+1P",
+	"nZGayRwlUBex091xf9yQBWGD15V8CNCl65Z4qGjEDYe1OXDTNQw0nMw13M3FpLDtOwEs9sdfP/iRcZBe",
+	"IVNsXq3DHeNTv+LaqWucTriIIl9WlZPwNP14brCWtxYdXAE8LEiLDg4Rl+6O8SFTLFMTYVzw/lq2ukiC",
+	"cNTy+qAPf4gbi7Vwr+KdDYseLmZS4VBsHGgan68Pl1/tghkDNFmrwjgBZuGe9BHQjVDpM4GoU8BNKQ6/",
+	"xZQf6csXDTK/7sVb2PBaQ4vTucYcsXCnF1lmIQtbQDB15/HxN5QmkSlpCzkr5HnKOsfwbeypi0cUc0rX",
+	"EJ1C9/76LDM0+Tg0UzswUZONed3Aa3+TgxRPe30LTX1vr9EM6l1ssLU3dPqvShQIVh3ICZsIbmabwa2s",
+	"Tu762kXSNiqn+AqBSTDPh6wBUBRuWJh0dwkcZn+FjHpjRvlBo/7WIfs+Tqjdf0NlQ4+5zIvcYypucIIg",
+	"aVssSWrC4QsfJJyNlTLLcJTILreyGQ9U7muvLTYCJXIp7pfik4dmzPUSs0bJ9TkoVfhIBf1joaoRvsyU",
+	"9NXeoFognL9cuLpcmV+tWNBz2ZOgR1RKxE3sr8qKdjxdXnWMXZnXxXRK2gyxaYTTPWQCK8srOxb6sjDt",
+	"JR/MbDLkZ2bYtj5//q8//vrk4Y9+VUCi3c54mc2waFcFcLAg5raN7oarcJOiuY27UTVRm+7ScxJOYRKO",
+	"tduN5ffGDbC+fk8EN3abbLDGHSfTA6vB1Xf93r2U/eUf/3dfF9T9TNVTvGPqbA6Y2mgsIHGjmTOFFkRn",
+	"XegclRNR5JwJy3jZS9jf9QbyeKzVhFt1rnvsS/b55/uss9fv73XZ3u69bi/UInVjgw53d8Ao8PZfKZYS",
+	"IL0X7BqR0eIKDBV0zBnPtDKG7ooBZ1upzjv4aSBPH3RDrjF8XZtGN3HwkDBfev+OYeCoPX1w6PCs+UBW",
+	"x0qNPDFBzxMePIK2CLYRd2N5jDEBCBrpQj3lXjMRwa2+6flOHMWizIzocFMVncgyY2YTGBs/w0BGwXzk",
+	"JRUJ87AhA7n0JjE+UeiQBINkIV02nFQ1AjRRWkBaBpdszMtRG9HqsYdRcV9fgJyXZXU3DdYfcMsxrL6G",
+	"hFrIZwm32Slpo+IKIdBMlXbSW6hfyzpyoSwuRmkdsG+47szh2Pz7P73917c//fj//vTjd529P/9bN2F/",
+	"/jdaFqpQrEaslHRuGBwbJVkp4fEKJNwLobCmsAsDWe1fwgorNC4rbhBnPtmFaQF8I0oP9gvz53+jJOKx",
+	"uvTk21dny2EboIavK3Dd7TGoebQ4TXeVBtLfJbzJ1UjhcBeWjrU/4qcP6lksUqEl19EH+st93sN/5+H7",
+	"uftM3xv81yXB1LZkTbk7ULGvaQjh82N5cfq9tn/f+G7h817LS/+p8d3C54WXal+4nJvwGYsGPxs9xVnF",
+	"lPdZVRh9IzgETxWqE80cTUgcOQll3YuybINCIA3ZQJ7PtQEiVebam2SrTnPaPK1NR2T9haTW9Uq+VCsD",
+	"f3tLdIhl6ESZV4FxVZidW7f3umCNEDeBCXMhSa+VHUghckNw3o7xWQXG3iXMpcPR86oZd9TPvwWyHb0J",
+	"ubnnUCMUsJlyNqJR1FPYWBrN+oBR27RWKFbBw0gMCB6qxx64U3f3gHHggS6t4VJVTQJjA8E0F+dawJjh",
+	"XSFyQJeCDbh/j/3a1Tg1Uy4NTIHCnZA/wW593neoBTX1KNKK9lrLHzQOGvrgs5ku7PwU5XPcmzPBtdBH",
+	"MztusTPA10oXf3SF97/EZ135eQzTcpWsegyDqswBS6usVPAExWmpWC22lpgKT2BmanrIjBCuHh0CiRUK",
+	"gLnSq21/s7YpuMolE5KCAboEDqkSl8fWTrfevEG360gtTimqeUaoKaZW1mEmkfWX/Exp54SIrCiB+Scg",
+	"SAHIV+3nBei/hFwYhJXlRKpYxnEFn7jMBMiOZZHNCa/LCPQCOf0pIXESm0rYtFTWJA7yI4biMHi2XF0Q",
+	"k7DfH3mYbGiSy1rc3EAO5CefkOhBm+QRMrglOa73ySfsKIwPBDu4+TMbQdGQlOUKBIFnHLZdF9xjA3Ad",
+	"ckwNyzW/lHQ/prOzsjBjkbPzWZFzjITEtqp1p8WBuVlnZyDQA6iICXeDS5JwnMhz+uw53tOBnGqRCSwy",
+	"fRisg0BM/Fqg4ApJt4SqMxXaKOlx0Zz5kJDdBpI21AGouVWupHgtpoIjuFthUPTwpp8UV/dXv2LHSl4I",
+	"id8N5DbVmCNCTOAgsD5G8tdimGGvLwr/LRSSvHv37n3WSUkTO2DBdJMCCWPQ48sXxyBzqZmdzmyPVaYK",
+	"PMSGah7bMaVCa8HAs8BItjA9GBGV46UfR4UsrGCPHz58uP35vX1Gip/p0bBdlCoVSv6af40wFBLfmR/C",
+	"cFyYHaHwRpXJCmMhwIB8efhjzXnnz1QClJ3VFVdY7SqKTytluwiJDZpo6hURzgzMWooSZ+SsaoyInnHw",
+	"ML5aDq2+gfrbLaz1gCFrxdpdjHkLTmgKFikrFSjtHLhsWSbMUN62JZUC1i/jNhvDLso59QZtWYwB1jBe",
+	"I2RuaCHw4OQqI9oT1owI1pk4ZFlZAJ+FUNgZNWRsUZasOJdKCz8ZOxZzlit8F2aZMMT2ZyW3QjMHDGQY",
+	"z3P3Bm09nkA1isifSTzhMom7WCbxSiKSJYIngJXAE1idtwO2C2z2s312dHr8+DErhbVCm4TlxXlh6e20",
+	"B/R+CP85gP9spwlNiVNdTqcD0KtwvvBd1iEpg6XV8QbR/qUsEKoEWnax8dBaFB7PdUAH8hcS+Bk04qpe",
+	"4ZyQrQwkkcJ052I3ZVqBSkgiyAY88MgBUcMlKQRy/YH0ufLUzwEM5Ef6wH5EieVHdq457PKPA/nj9vZ2",
+	"+D88GLNT9mO8V+xHRJMmlgUToe12W5S4qm/wI9yphB6u1fyqVFnwIuygz8B1GnNt9iN78vjpKcYEnfsS",
+	"7T9S+8TNA0+KeFHSqLWeeN8pyuhCOHgEorCFhJXIhOu+LiOwH4GTGctHo9ZuibtVrM0cBlT9ELV1yBzY",
+	"Q2wJ0yJTOq+tiXEjIKGE/cjwj8JYp8H+SMIqklTofuYZEI0Ctx/bGMiHNVmGlYVxOKB0EIgCQPPEbkmB",
+	"x0KOcF0HskX0OWDcnTCwLsCV+eQTIDNKik8+cbaFCVpg8gmZM/1MENIThiByyG8ri6ywZI3RSERBPsHM",
+	"JBNIGjztmX4prECA0IF8NhXy6Plj5iVJX80ASRgCT9AVqmYOFLsSMg/YH14Bgpdv526vTy5n4y4FLRQa",
+	"i+B2PIOX9nB14ZXHD4CpSpFZZ2M2QKyPfCBewia8BIZJBfCI5uMpuFCvhdsgGNF+f/eQWFbhv3WcBoQ6",
+	"t1I0IHz6bo+lO2PBSzv+I9CuHSxLSH9OhNVFZhzQ0Y6aCsmnRW/OJ2U6kCh7SOU66aR+4XAhup4wPUSr",
+	"k6dCVKgeNlKyhZLSnRS3ig7sjvv2UwCRT331tYFMXXFdbwRpFH5OsQeTOjmkrQ70ATAJVxcXyuDStyA+",
+	"wYg+u9/fXVkzFwLDgB6nATnX7Ozt1LGiWCcdbA22UpgpvHk5ViW93z2k3o9Pv2GZKEvodu0qvAlLZerq",
+	"REDQXc6m47nBErTQAlqVYGhjwXOBy4xf73Z9OJvr6PMdL+qlbjhVsC+M57ryvr6572dCzw9QsYSxTbkd",
+	"HxQ5Mb+UBnHwOBeTqbJCZvPt34k54rOQ18LJSZPCgHwrnZIbLz02RAJ3YbwnQRNfdWWe0h131J7668HM",
+	"XFp+lbgy46A9OR5P3DYKseRasP1+/5AODxGuwoD1rCy3XWtnM1+NmXEqz+xxl4W+KDKIMZUBkzcyVXqh",
+	"ZyDhzoH8Ea4tPZFAewJ4OCuqNWKvxRxlwf29PeC79/p9Ul+AbgzkgCKtwVmJB32wFZAF0qqeeHroLJQz",
+	"I9g5DMSqMGahwfjdG8ivFVJ76MwJ1BSpFiqXF6YmZQSVioRHLwvUi5ODRBwvn5ICxdgQdYOCH1Lt1xiF",
+	"i0pvWWTCgfhRHhYUep7qQliu51GF8VjJpYhU44BrIZjQgXoDjdo62Lrb6/fuUmzpGO0BnsrB3+eiLQgU",
+	"y94atgd5I6EE6lSrTBiDRKssLkSPfY3ik6d8vVANAMIF8q2Drd8K+5XrquFX3etjGKOrogF/xhTvHxzQ",
+	"IB3U60xT1AVZBBrzwGHCatzr95c1E8ZFuIuSl0ipa8aUrYM/vEJ3FZTuBF9ScSGkwEBCiwiaf6hmbqgo",
+	"recZSxf5uVZw/sXMUDKouJr6cm6kDzbX95AeEcDKkXkqCRqVFPZS6de4RR7J3TCrZ8bSmVrYk6duZNfu",
+	"CYxrZ1ryorEbzViohYV3PbyPpY+WbRLmsXQTYk69dCfA8+yFlaCrRVQCPBBnswKkWrQIrnHsXXObHXs/",
+	"yA0WOh46yFl++An7T0dPn7yP9X8Ra7Srlp7EpzVpjPNuhdLc3P3qbUCOZQG/nGmNE7zXvzuQlTu9uSss",
+	"nahcoOBxbRlwEAirOuDMR+IduAK5XLujkHtPBGprYZA4kk69NjibSVuUVcgOtGyAhE4UmkKImUfscyCl",
+	"skUmjHNNiXKElZnxeJg00i5qxb4TVozAEJE415sdi0JDEd8ld/+EduU9kuOoFPjiecXumVW0njc+n/DW",
+	"3evfOqWlfSn5BS8osmHV0a5GvuJYB/DjpSf7k0/QUn7wySdN4/iC3qu0V99QsCC0RSbJbzEqNMhLSudC",
+	"U7RurewDGpGcOO9EH8nO5gOZFnn8Y489Kkq0lmRqclZI5yo/+vrBIUuBoOEdKaSL3yIVx6rUoSfCdwk7",
+	"U3bMlKyPoMd+J+ZGYFHJQjrjyZS7ShK+6udAQs1JsPRHBSRTLFDp/6589wiXTcM9bLwA1xQjW5SsqmZD",
+	"0yAd0kMwETXl30M6lJJNQ2UuKKFFafTXk2d5wnO3IEhKfOcJ6YT9tlsEgY3HvuBO0BcMpsoDp9xCbcDn",
+	"7B/UM1/Xu0NxRNqbpL3ZKof29toMKLe312TImlqvyVoK3LI2o3o9azUalQFqXtaHXJeFMJY1SqqE+4C5",
+	"Zi1jgJtTG8A6AZiL/QO27GLv4uqa3q26hb6fc3BIFn9c2gsqtLWOQtbsvX7kqtyreSpbC7W3yVz1+61G",
+	"NbJBV3vJwEIV2rUPlUGx5tV75Ht4cjHouYXvQeUamBDMkngA8r79dXjflzz3gcT4yu71r7yU3Jm0RU4v",
+	"rcEtHyl9VuS5wKjN/b3717/xQqmnXM7d6MzPxM0D/z6mhJ7CgHcx4uGOX7+CWJuGwXULIfDWwVWuM3+s",
+	"fPAeJACqI4g2iFEB/j7iUsEtq2QmkopfugIJcCtyiiCjb4bOIOBqQxXGedK08C0tEQ9xCRfZWtvGVI/Q",
+	"0Xe1Md7v/VqmA1Fp/l/4lervX//G18o+woSgv9I7eORL18ARLayh4AYXI4E+LA/o8b5v5w46jNa6o6vv",
+	"pDf3ZUrnIqdK+i5qp/JveUVVz2TigVdQgHdOlch7hQa06VRI0klX3cQjnMIv8jri0J6opVYJXCbz8Ur+",
+	"Aq5kdPTQfZc5Iu9voLtMy27gBlfOya0u/HOqzDtdPMpGNIyDRkyjTihsOMQTR34Gn7ca4rqVLs4xm8kH",
+	"mNixZ5UVnn1ZSPIasgJN86lvZqhG4BOCd0JDgY/6XET0pljwShTSCx49duJabwwjFCOAN8In0F4R+MgH",
+	"DLnoyI5wZAfbGkjMOMA8QCVFMAxZqLDkfGCYnYV6hDMjo+Wg6whQWB7nNEqnZB4YusU/dKYt59NXo6h4",
+	"plM1BxIrXXLv4/cxYoVNgvPFz/aOcU+R+Qy2AHGruBlIM5sKbUTuS1KGoYE/wzSbqQU0uDU+AIudQw2o",
+	"/U7BM9ibcoEz1TiciuULatmBJCMdR6MFRtNKEcB92DOPo+VMjnEZ0GzMC8kyLgnUD/NSWGe/fz8ZSPSN",
+	"pS4Z2Azd2847d4IYJ539vb2EfLLgUsvGQYSr/LaBg0J7hyHIbiBp+FBR4+luHzJI9va6iTOJRLF1EC/n",
+	"UpiBD3XR25ui423oTlV6QGOgE4eBXMSk8dtwxNCsIoVPegkluLBBd47N0KBdHk6UFJcQyGBZKbihlC33",
+	"jgsYc/eAl/D1nNqB9B//y3CkOcaYUDMTZSzbgxjaZqVXPxRwj4Zm4RaUcIHqk/BDyNRMwjRpTr6prhtF",
+	"4eBszRC8cvE0alGd0YMpLR+OoeN2iZniKvFb1MVzXdXroJ7AojbEmOChkLkZSiFyVzwoPXCTgeHWyAAs",
+	"ALzInH/bFSbxl29cnI/hM+2n5FpD0AX8gh3BXPBt6PAQrWPQiAuCorG4ESQYdIdIuy7T2kd/XI7nlLRx",
+	"LqTQHCOyUvdWZWvDRe62iTZE1B96RvGOwg1y2C9VPr81uSaMLEgj9eB/V6W2IVftfhg1J8ZmoLAC7P+J",
+	"ypYk9D7ndhxouXs5YWmDbyOOT32KySov1H8wma6/hkx3rOSodDhW+7trjOk5n5eK5y+UegJJrfTevXUW",
+	"wMymVN/xqcgL/mJOSKb7e3vrvOyc9CAGPpQWnBx/pVLrw2Y0H1I5lP6wFiMJhf5MR9Ls99ltSLLTUtne",
+	"VJ6vpT/ewMbDJwJjG9EPgp2Zi/PUzez5179lxQTsnyt0w+elss+//u371A5xDDtuFVqszWeF5GRpW8dP",
+	"jbP8qA/+7DcLDk6kCCaMTtF7t8f4U/4ertRpFeccxMCQnTXh+jUkhflcmwDwmPgc7lGB2SSQCixz0mV4",
+	"VXdtyqUo2Zko1SXpK3gtQtgXp/AdDMwaSMknKGRS+yFJKEpAgtadA+u66336zQe43ubi/NOrGwWefLzQ",
+	"v9ALffrNh7nQVS7Aeuae2qVu3uHHC9luMKfZlFkF+HH9KjUlSrNzE0ZVjwJgeKUdUow13ebqljNf05Vx",
+	"y9Lq+7TS3lC78rpet8cWAkR77Hk1d8oaaibOcTn32WUYbDBGzj6iqrrcuph8aBB83bAYjigc1iDoBhIe",
+	"EAYVNyJNrpQ6RMP6QFXKy8Kik2pmTZGLWma+yAeSNECliZAxTob4HosN9pSFhWn5VTqi6weDcQdyv39/",
+	"uVYXLcovTq+rxraRYtd/LwOgLpY5ip15bRpyfRKKSnNpbzoXurf1UQf7qIO9d4d6nMuBmYQ+9ThiLzEX",
+	"WJPHrOApju/cgvfgqUIIb0feMCm5afNmVrHUZZI5huQhwFPCICGvH9nQcpE5+4krzE4KKbQkWguXsCNs",
+	"Gs33fhwO3ZpIPQanEjYuGeF4ZUoDE3EgykqKbo8d1RgKIfaXSp4LvTgzDF+7f4ByLHwDX4wQanUgT7Bi",
+	"kIm9l5i/LtUlMU/TRuKpCPRtBAjcPnGnsf1MhH2pxY5GJfKPxPojsf4Abt5mRux79fQuwG7eskZPQRdx",
+	"L1UERosCgMHRNl0WrvtNA8HzFxhPsQCdukTpri38R+37579337Qn3LdGWqywTa+phifrqNk1fJ7l94w9",
+	"jrAGoNmBXIIe4ID7zrjNxpRHCdWE4o66hyGFfyAn3MdLoY/Vw9TCLR2D0NRpDMq5xjHZpubfBVyDqIw0",
+	"vMQ6E8HRNJCGTQKkEDWQeUEFi7sOMWIy5VqgZEMZsvXU5IOQ5zOQiE+PQNwekR6b+PWD65HrIUQTcT4N",
+	"KuMDiRDrf/nP/2vDYVzhAPXiRR6Gqp4A7Z0mJCAOpDdFvP3TXp/92gclsJen7OHzI3b67fYX+5+xp9g6",
+	"+6Lf7z+IYYrq+3i4GBtAw0IIP13kuEaJD2EbyBoqD37tYwl8SNtRlf2KS+sB9Ck1w4upINka3Nqj1mCN",
+	"epiGh6Gvg0qEqI2B5BYOL0U/ALFnzeiNWuNKOxdRJP9jtuQl0zN52Aj6cKhAxoE9LoSKuJqN7EiGtBgl",
+	"g/cpClypkWfveaUhFJZeEGYgO4jogl5yTPemuAqasVWKgnZqjSUDCQ+RfqEVIT754AAcvItKQnMUzMlq",
+	"Lg3FUbj7hSnMtGP7/fvM2ap9nSQyLvncdVId4npIkOOGfwylskP/W9pNgpJVBfbAVeeSLS5V1UgcGlM1",
+	"0TBDuWfH3AxHBcTQQDr4AQKhxpvtsJ3iYxQFQkGftTuHuzqMLgyCPHCK0Vli2/qmDvj+y9J/2kDHP3Dc",
+	"QlsZgTVEmBA4q2YWKMxHXemjrvT+ZbYTEk54O1pSBZa0pugWxKDr/ScRvNPOD9WHN165ciTxPYUdROYj",
+	"vOkU+Qpks+Gg9Dge3BKr9a6RgZTqsnsQkJFFKJUXOKYlJwMSZHyXutMhjnIgO1LZdZgFCXLwsOc25MSl",
+	"BFmXxUnR9GjCS6iEFLceeT3yYuCsLjkxWlggjw9vvKuHGRHHxdLEhoUcInAVgn9JNPWZWTZucjwzkMSM",
+	"VZkLzZQUPfZtA7SZ2odAR+Jq/FwMx2qmHa5QJDkVxrWDuNK0gLQTCdXzIzhCHFiP7ff3PbIjBqxqgbAi",
+	"8CB6Di6Vzs0qX/Nj+UhR9ZjN2FqlP2xdn6W6PL5skxTTRW4yUQR44PEUD9GOSY6xMyOkXZZEyO3mOZTv",
+	"PcHJb8WqPKdq6z+q/z87K1ncFbiq3B3LW9X9r2Mht+uPPzIsff7s9AVb4fZPE1KMYmNctQ4jyrRfYC6p",
+	"IwrpAnuBq4s4wQOZ/vYhdb0mx0y7DtcOVx/gDAMwG/pjstd+eLlp9eh/rZrjRx/K/kCGTBPyzSzXESp6",
+	"+C6e8Jiqvid9oW2gH93iH7WHj9rDOiT/9zMOMsl8Be27Vf+4wx9dSydoCPwlwUvEuXEkpnrovbM5ph4t",
+	"c5w8dV2/RwJAXaxyebj5f0RMuH2fYVlGKND1sxLHeLhnlp7fTbwTsYiBBlo4fyxzuZ7hpO722HNlLKEb",
+	"UW4a/I0PE4w0BNhVVTLJwltYs3DmfdOkOV5Fv3T2+ruQ+CUQBEZXU8cUzSQysfoKNVU0SGiEStQMZJSW",
+	"Wg1dXPHMujTCxrjuGObuD9GRgfQDlU444RhfQrEaYAzd6/fRMKyFIbN5qPUBVQEiDwMVtIgQIqqqpiaG",
+	"HgtGfDNWlziFssQEOjB0kwGgQrGfyeL7Ga19IUHAJaUW4lRWmE2fekSh9yHGUOM/k+DiZtZCs0hnzXjp",
+	"jSuNnT8MO4zYHmQsRep2mwbZ5eOja+f2T+l3yyrzjCSNONXOD3Bs/qOllX0UxX6BEYp4eQI1Siq3Xyzy",
+	"UBWtTZlZXfpyZ/oWhLDEF7pXAbonBh5Il6O2EiVtg5wDr11l2cJ/3o/F7YiZqcjAZh6Rs4jGrWF3i3L2",
+	"qhFVWGK7+5/vf3H3s/3Pr4EUe/Wz0PZKHv1ofPv5r/8z6Xfj5vfb6V6be1zaQ9aQnTu6UyFlVIIk+egD",
+	"lEJUyzxBcAzCzWGFJB8+lpFE2wYWFvgezFx1eKHnyiFekAOhhp/XirqJpWMAnxxv6UEVX4PIICAP199B",
+	"vO9L8C8YYVkHfbYOgx76cCVBnQ5slGbQrK/BloLrfqK0SL2LQiDOJnzlMILYpdDCg0GwTE1cZYuBfIRR",
+	"LyAo1UdkhPA15bCJIGYrmYkD3yyWsKHatYQKgTRXk1tFFDoOkDCuX7QhcpoXbIUeSBfcw6XryzudwkCR",
+	"9OleqAhCjxUGUYKtkL7rqDtqBGHpc1bYA4y+QpEf4EMweMVnO2GUVY+ERHDyue97PIcYjZR+cFEYZDEO",
+	"IRY9H16VLPd0uifjX9MuQqS2euTCC+GneBAYymJjtJkKBgaGDqfcl8gPD8eOQCWp2kerLeIEG3qIm7vI",
+	"Bm8CL3noOFU1FLgB/tGREPkyHoZ3aHP8yVuF4Nzt95eXC/zQHJM255Foj/qI4S//OoDB/hplYWItcGxh",
+	"netxdLUgcPrmZsZIPVvbuxTVtVrI11baWWSA3HWiqosVNJejdBQEMMIYISmqCoxAochG0UACuxNA4iOR",
+	"2/PTigYfMM72+rvg/efSRFWfasQdYx1n0uXtyKiYHlXbgaooLmSTRlbVc3EGIaUpEJJ1Qu36BAGKwtYy",
+	"AcUKE2aVgpqlA4kPmS55pwDQinxUia+f5oIp44yieq7mAdP8ciBzbnkFWmbHWl1KCIKYQ+hvVC2Idfav",
+	"rrrUSzA/RXBVZ2KuHMQQ3Xey+hxEi84mM+NrARLMo7G0ptU+VZhih96MBEsSkuQ99FnJz0SJEIlcG+Tp",
+	"A9lZAHIy7FxRSaIoEJgOi710NWaNL5qHteSxsmwcA3zoL0mR12xcUX1PV73pVywq3zOQpwJEm4WKPlax",
+	"CRjetLC6ELAbI0Eg6dg6XjEfcTOQVC4KJQFDgoWY4PABeYqKAHnsqb19hoEiHi8NCc4dtNjJc6GnuiCJ",
+	"g7PTr4629+59dhAXESJMyrD4jAP304bw6wZSyEyFtArWwWrjhcVStRkFhU4EHHsnO7kVnXBrhe4eUkcD",
+	"CXWc4o6Qj1XllEwAqdL8kqpNnc2toEKFp3wioN5P4gHgw6QSknL9lEOpspzO3iefeKC4gWThQn3yCVXs",
+	"sTMtq3nt9XcbQPM4ChRSvanL1d3Ex2rbeyKmJZ9jt3omUrDgMSMyuBWwopUbuT4db5628ZwOsKRR/GBU",
+	"laI+3UAAwK9UQs1nmrfrGsOZYMAUQuwvla3OCLPFRGA8ra8QoHEmFPGtNENEv/3+fUQvo3nX61gUoKlU",
+	"wF6jQhZmDOOBlnEWR1VncJYdcQKSAh3cA8oSXge7NWo+r8U8XC04Op0Ui81k5iLtQg0rOa9VQoTKN9rC",
+	"kz32LY7ymKSWbbB8HbDwcoVaOJCu+peroUnx617XWTieKdExELGrjrGeca3oQsczTKI0qa+4k7IOleLm",
+	"ZffQQRGkTXEqdeHlUbdINs+EF0Q7+/1+NxiO8IAWhr188Wj7CygoVRLpw6uzTdcR0E3gGSoYmncpEGp/",
+	"94v+QHbc1CEf4wzmrAJwZjrYSg/Zk0ewRccnTx5RgTQhc8A7eFJITGdQxh3IgQxFN6Gv9FepBz2g7YGl",
+	"gC/M62I6Ffmhq7ldYjvRDz2aFx1yKriA/Tr9kTasx46x1psJ3klCtpRzokCuwCYVhMN6kbQj7MdKr4EA",
+	"+R+DCKQuFypvhuqbrwuJBTDnAmo/pr6FFD/g+6mvGOmjVvzD7ouoSOqSL/F1ZEjVy/ix/irp1PR0o4ye",
+	"f8tnp9R+Tthf/vP/xvqNFkJlu/AyBg5GlbDdYVr+w0CGRYBiath/1UvFPBsz9Xk4Cy/4H1z184RKrArW",
+	"Zx16hESx3S7V19xmzyLoyKnQsJMAr+oLz7v6r1PUPhmCHdYoPGIThm3D++p2IZY4yR+GF9FTSMFtvZH6",
+	"dnS9BRd+b/YQrVeH/jZR+T7sptFDtGLdHjtRl47TutJwwK+D9AMt4a9IejH4jO5B3G9hqktBBlk5x1uA",
+	"IgI9WCsOPTMCavdCT7nIigkvCZMWq/V5uoZEWCKVSnd798T23bRLiVcM6NrMcJkbjxqpsIDL1/xrIKiP",
+	"5SiEuLKyeC3iwr2EeUblhsOKIFoJ5p0VEoUYx2mwUmS9rAsQ2TkB+BqY5B3D4E4Hyooni16XccHQfOaW",
+	"NPdLSKSG+0qj1RrS765+Nayjk8Mr9k6KAcg+oWIzlxFNc44JIHaE24lZ+/jQfv/+ZyQLRXUGHULs1FXe",
+	"XLswJh2P9ufTbjgzuMaExA5rjFIirWMHMtcQbieI2VRH3xFWIltgH2IhCgtegfKM+JtJWGjCa3AeUgsY",
+	"PfI0cl87aFdoCiqIwBuoseBFJhRXEpNcvUpQWJz9SjjtMbSIBfEIFlDJbaIm5Fk8DGCpfI6S0JmiCGtU",
+	"mcj5EtXhumOwUSoWpKMYAGjCgfWi9dbVpvRnwS95r9dL/b6RTfAKV+FgINM0HchfOVmGOo6o7nSsrEKp",
+	"YHuXdRxrXWSh3YGE4514rYkUyjo/8KQ/CTQh8RRmIP1WJrKA50XyZDfp9+4l/V5/t7+XJCuf6N//ov2J",
+	"vWS314cn9vr32p+4m+zRE/u7u/gEnR7/e4Iv3+sn3273+/t7Sx7YvXuXHrib7LkFXRJ4cDLbPE0rkvh/",
+	"J+Zbi+Y6OBl40oIYiCzDpes5TRjjqZaY896xwNImo4mOVsWhl43rFmpUrTu2kBWBZhVepY5UIfzLRhlJ",
+	"4rdQ/qgaYpDcYXQKmE8jJ2bZgLz0v/aiPfMvvHlvUCizKJI32fKKUb2BxYVAzg9fnomcSCTMeVLIJ0Ke",
+	"23FsUI5BAT9cfuHJ7Lq0Qj2rsgl9VpIO5XQ6IG86Wq2dNj+QCzachLxR7iXHGgKEv9sw56KIYmXabAWL",
+	"C52i8cCXuyyM13tcb37t0HUoWRWVhp02jBegQK8TXnOmVCm4xMOwXkSPS5F2IT16Jv9DgkR/jOb5BQJZ",
+	"KmMZDxd5VNjoMscejNmqWOo4G7PFebFB6a7lDgxPb7zjmXsD4AGO2Av9rqRGo1wBmV2Df4a+q/mntchE",
+	"gQmNdYK2rKjrDWSdk5l835A2MKzltPpj/MwvoVqX8wfQ4b3VK3bbgTX0SL0wjbev1G+Pi7sAS1GoQDOQ",
+	"AaHV1dDzYqi3YpngZVtM64gK7Dnwijw9dFEk3icYVwaC+Om26AlfmohaPS9ARkGN0g3Chy7WyuvUazeE",
+	"TGGwpLtU4Ki6ThRNEezrJ3GU0UA+EBpoSxNXx1Oa3x8nsSdiVtYSxs1A5iIrgGQlrJEYh+VrXEhTKGUy",
+	"kLu9qJfL2hCXZn4fsNRPCqow7cVNZGpW5qzmZG08frfZYwAyKaQLkmm8sR+/4TwYsBgToNxW6bl3sHJ0",
+	"uwTLE6adN9q614sDItvjbgIkUi1d3hkq3Gkg1KDI90DjintLmhg4+Hqty06ATV7EtNGCnDKiJKgltGui",
+	"kWsBOcdLhctOduGWBJ7DBujlsdACWOIShBxfz6kJlIMtYNsQAVU7IZnSWmQWDZnexoBd1zW2O+gXY7ku",
+	"Rrbrorq82xx20i95YVtrRrlFwzZovShiC149HMjP4uNSQxU4YCkcClwUXsJx+Dx+NgIrYJ2gjcBNScjT",
+	"FvAKaLBQtYkxf6uAgtdiDUMwIV5tVkRhagCQ5VNoHXVNA0V4RrWuUW02A0ketSPMHzlgMcMfjQv9qXdd",
+	"VaBM6EtDa9ujrx6fsJN9IK9lKSi4Lf1yJnPwm8AYnp0ZoS/Ibm5Yh5CqQ22rl8cvnzIsy01A1zNTkaVa",
+	"cOQBq5aA/eV/+BcCM01YtNjwNcY/gmFTcu1q4uPphjcyLsF87DxgBDKEwzlkaS6AUaZ0A6tThL8gtXyE",
+	"hdLDRnZ7rL5oNQfkfCD9CnlnHBoV3YY7v6RWl15CrMzafCDNFLigGQth2SXSOvhMyw1bNis5+i80Rgxi",
+	"m79J2KcJ207Y3ybM8rOBRK9eQM/gjkl12VSLUXHllgAOC58qY7WajoVD9Qr4545HcWB/ihaK/My1vCNc",
+	"EtpvKgtFtmTPpGDWkFwEteuaS3a1HZ+0cfn59sXep0J/Tkvoz9hAfvXkc3ax17vX22Xps5OX3530d1M2",
+	"EcZwcBEUkj08+ZxhEAMyJSVFlCPMOk9Pv0oG8tmXJ/TTsy//Hn+mqR7QxBI6iDMJXnH6xQGzJ0xVB3gg",
+	"bQEuAp9sAJLRdILRrti2pxSCfJsOl96Ic3iGCUkcD8GAudYFBMRRlALGEzx98uQ5G2kC5VIgTHz14sVz",
+	"SEyXIXbGjrWoMOG5ZDOZCW15Ie2cnc3yc2HZXLgogQjgqgK9J+QQ3BznV1miUZyEwLEPoFgEOrPKTnXk",
+	"qY0/cLAo86lgFe3pVYY/dQY8HwXed7Sm0Tost6YtWBq3lh3tGxTZcCT3o7b082tLp3VkQgrwn8lbDa0k",
+	"1cmJH+8eZ0ntROJmoFDe+g7tgzDCG+ieXko0lS8HQkMwwr0w7HvKgS+cCCsz0VSbaiUzHXihj42oHACd",
+	"SpkDv+zIhSVFebxB9Kuiyp1D0ZlNq0KZVbJFJazcaWZZAH9fEgvKVoeCworWJfLCLOiRl7xabh9fTgoV",
+	"8A4fHR/Cu7ylB3FEUbMSxoUKLMNidf7ugYx67RghInmvqYNDXIE/C27Dq4wR2IbCGlGOUCOA1GG0CfiZ",
+	"RmreTF4bFeqYnsOWpArgosxdsCj0hZVQAkaoi6RwR+MwxCewIq+FgMZBmegchrYSELRABXJgZF7XKWzI",
+	"JxlzEzfq1BQ/NdICBrKa3XJ3olvAd2KIt+/vcaP6mVAfa/yxlX8F9ZOOSqFrdYFd1ORH2JaP3oX3b+zM",
+	"83AarYr8DN97PBc7FpNNuPkKM6jraOeHEILx5pYNoaMqBo3IZcJ4ppUxMC+6bx61grgmmkl9RfPITnrI",
+	"rmEeoSvHSJ3+gaagIq8QoGlchJrlGQDhCVexaUv0DaJiS1WORbICAF+1qS8wNvdrcN3XU6TDiG4nT/p9",
+	"ulHqa/NRTfjFV65t3lLeOK23pjB4oXB7wq3QBS9v0dniam1UFmvXBQZlZypfChnla3E+DWN6n3ej0dlK",
+	"GCk/oI+5h+8FSGrhqGyCILXkoG8MKJUJ7dRSLTwylB8PHHVjVfaaGeUC0Z0hDdVc92qG1uYU7YKpS5YQ",
+	"V1Muc5EPI3ObqxCWYg0JgPKloPbUhfqmobBDyjpv/8R4UmlWWmSWy/NZyXUykDP2G8Z3/vLP/+Uu1Phq",
+	"jlDpmh2P4m+nWky5dj48SLCjXIowUUJtKix65PzDwxHasH12npu1+9nlGRgrpuBxKQtIFnFRGGBbv4Ao",
+	"YzK3Tp4EHlvogQzzNN1DFmn5CZpTsQlvPIZs/sq+P+UODZp+/o37gr39if35f2FuCDvYfTd4J7UouS0u",
+	"qhohAxntCSjrZxgxW3VwxyUFoFpK04DyADsdWPG3P33THcjO3x3/9imELLO3/8e93m7vs0P2cKY50Jid",
+	"48cvjo7Z718ePYVybj32sLcLQfoOCQxdaIQT4PLaD7DYaI6qJkZyo/La2e/fX4GS1SRj7wkvq9nNz6Q0",
+	"Lsx2qUzjmJA/1zcDqAqMK23nmTs/wH59jG/7qIF+sLIDC6zy5vA1S8/zu4qCrWraIp26Ho0KRvNXoGWt",
+	"SZQqWvRR0/olwD+9y1VarV1hfv6aPpi4jrkxM2EYZ5rLHEQdaIZ1Qi7/7t4X7KywpltZKiAQTBI8AKX4",
+	"D6QRmRY2eGvRU+Cjw2U5PwwpS0J73Ab4HmUkhwEwkGNuxhQEgLFppTo3rLDLxZAXMNT3JHtg2z+TwIF9",
+	"X5M9gNuUVM4ktwEQvCBRhvulX/iPDPz9Exy824zTYYkIjSMVa7JsejrEoeeiFFasTV9OxIV67TQcbOnQ",
+	"JSNWqaP93W6lZjnIY4eS72rYRXmw3lGmsd2c2nRW3DZS8QCH60nF9ez/HUysL18+ftDK9vcXV4uW5SMq",
+	"4y9CzIWtePdrooXMzfushGUcOOyS6ld1pMUo3BkNFgMJ4Y3h/EdFTFJTqimkW2Me5hk3Iga5wPKl0Iuz",
+	"B58+wJaqkOvUv5FWsaLVcOG5y0Lm6rLqcK8PqI3AKrUqfV63KbBo1Ns/7bHTB6xzybUs5DlZUt7+6S5+",
+	"SdEPXXSfKAle+dOxuBxzbSG2VFvWeXz6jH3+xef97T03nW+FseeYzIJBALvbe6ZqPGG723cB7mBve88k",
+	"7GR73yRsf3uX3FG7/StIB4WwrC5aTgQsJKeY/GphTT1M3lBgJKblxaXADhvlKckYUxbBCTSQaejggI14",
+	"aaiI10WhSjKmeTOZqepfRnDvEChyoUoMzsDIxZG49En7gDDV3Bw7FtpFGIRNh6xv2g8MFpGzsnRRmdRl",
+	"YapF6LEjSohnu5gLX81qIOFgHzLIH5QZQS16NE0ZnwiMdUVozY7kGhEfrF8LtP7BJuK1Yo6hJ5F8iGmR",
+	"mUgW68WqSzmQvz9myMjzmRaG8pxqlWITpgXYNK3SbUVj2zVKHM0SPrIqR/l2sI0/RMWytj7CbNdOHMZ1",
+	"eh5ea0lnfojpokA/4hAl8Pli/NTF0px0OBi3kE79hNuW3sXVNb1bdQt9f6Uu2YTLefNOJg1w2zoBTQit",
+	"zUZEetko/e/tSJx7MRDnXg2Hc+8D43DSfVoWiyN0AYsCV9fPKAk4IDKvSONHH9nti0UPdDGyXuJwMJb+",
+	"QlO8N0WXo5jRYOawOXXOG4lVdNZvqbocSV0701LZnrk4f0/iF/ZSy1GhftNGlnvFFhKWa35JgYmVrINS",
+	"ykEsOzhkOgpxIVaWCWlRNJCOt5FMNJCRKETrHNLrfGsoetCtEBgxVApEXPPYiQhVWQLvPmkRRqSyNOpV",
+	"zO95qezpN7/9yAM/8sCPPDDigcWEn4sdc3H+6dWkvEHiBJKGj2zs9mGmY9JLSRBIuxNGVOyWuRL0LbKZ",
+	"BqshUMUzwbXQRzM73jr4w6s3r0KHzftQ1bikgEg1qgVSVAH1nUoZN91edd7hrRYMqEcE6xy35S8axTdH",
+	"mcLARU3UpFuTxUYfywuhjWBVsUAYr7fS1dC94vaqx9sa/f2RL3UNY+GzvMBKqEXZqxdjEZdtL1cJHnUk",
+	"8SSEcUdZFYFvZhUIea0XF7y40M03rUkOSZX1UQEHN2sfh9a/z1oapgJmWIXLuYGiqBVW1UpjU1UWWSHi",
+	"ZXUvtLX6/DFZteLH6YuWp5+AX0eYgGqOf06E1UXmp1UYlqssgEzVcKVoW1+9+f8HAA==",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
