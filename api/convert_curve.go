@@ -24,6 +24,7 @@ func curveOut(c *lab.Curve) oapi.Curve {
 		WeightingRequested: oapi.Weighting(r.WeightingRequested),
 		WeightConvention:   r.WeightConvention,
 		ZeroHandling:       r.ZeroHandling,
+		Nonlinear:          nonlinearOut(r.Curve),
 		Coefficients:       nonNil(r.Coefficients),
 		StandardErrors:     nonNil(r.StandardErrors),
 		Covariance:         make([][]float64, 0, len(r.Covariance)),
@@ -155,4 +156,25 @@ func nonNilS(v []string) []string {
 		return []string{}
 	}
 	return v
+}
+
+// nonlinearOut is the part of a curve only non-linear models have.
+func nonlinearOut(cd *calib.CurveDetails) *oapi.CurveNonlinear {
+	if cd == nil {
+		return nil
+	}
+	out := &oapi.CurveNonlinear{ParameterNames: nonNilS(cd.ParameterNames), Outcome: oapi.CurveNonlinearOutcome(cd.Outcome),
+		Criterion: cd.Criterion, Iterations: cd.Iterations, Theta: cd.Theta, ThetaMethod: cd.ThetaMethod,
+		Anchors: nonNilS(cd.Anchors), LogX: cd.LogX, ProfileLimitPct: cd.ProfileLimitPct,
+		Profile: make([]oapi.ProfilePoint, len(cd.Profile))}
+	for i, p := range cd.Profile {
+		out.Profile[i].X = p.X
+		if p.OK {
+			out.Profile[i].CvPct = num(p.CVPct)
+		}
+	}
+	if cd.HasWorkingRange {
+		out.WorkingRange = &oapi.Range{Low: num(cd.WorkingRange.Low), High: num(cd.WorkingRange.High)}
+	}
+	return out
 }

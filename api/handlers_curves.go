@@ -149,6 +149,10 @@ func predictionOut(id string, p calib.Prediction) oapi.PredictionResult {
 	if p.Interval.Bounded {
 		res.Interval.Low, res.Interval.High = num(p.Interval.Low), num(p.Interval.High)
 	}
+	if p.Interval.HighOpen {
+		open := true
+		res.Interval.Low, res.Interval.HighOpen = num(p.Interval.Low), &open
+	}
 	return res
 }
 

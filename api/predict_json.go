@@ -47,10 +47,11 @@ var (
 		StandardError  *float64
 	}(oapi.PredictionResult{})
 	_ = struct {
-		Bounded bool
-		High    *float64
-		Level   float64
-		Low     *float64
+		Bounded  bool
+		High     *float64
+		HighOpen *bool
+		Level    float64
+		Low      *float64
 	}(oapi.Interval{})
 	_ [16]byte = oapi.UUID{}
 )
@@ -119,6 +120,10 @@ func appendPredictionResult(b []byte, r *oapi.PredictionResult) ([]byte, float64
 	b = append(b, `,"high":`...)
 	if b, ok = appendJSONFloatPtr(b, r.Interval.High); !ok {
 		return b, *r.Interval.High, false
+	}
+	if r.Interval.HighOpen != nil {
+		b = append(b, `,"high_open":`...)
+		b = strconv.AppendBool(b, *r.Interval.HighOpen)
 	}
 	b = append(b, `,"level":`...)
 	if b, ok = appendJSONFloat(b, r.Interval.Level); !ok {

@@ -68,15 +68,7 @@ func (f *CurveFit) Predict(responses []float64, w0, dilution, confidence float64
 		return pr, nil
 	}
 	pr.Concentration = x0 * dilution
-	switch {
-	case x0 < f.Range.Low:
-		pr.Flags = append(pr.Flags, FlagBelowRange, FlagExtrapolated)
-	case x0 > f.Range.High:
-		pr.Flags = append(pr.Flags, FlagAboveRange, FlagExtrapolated)
-	}
-	if x0 < 0 {
-		pr.Flags = append(pr.Flags, FlagNegative)
-	}
+	pr.Flags = f.Range.appendFlags(pr.Flags, x0)
 	grad := make([]float64, len(beta))
 	c.Eval(x0, beta, grad)
 	v := f.ResidualSD * f.ResidualSD / (float64(m) * w0 * f.WeightScale)

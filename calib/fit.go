@@ -73,6 +73,9 @@ func nParams(m Model) int {
 // §5.10); see planWeights for zero handling and WeightAuto for the choice
 // among schemes (Almeida et al., J. Chromatogr. B 774 (2002) 215).
 func Fit(points []Point, opt Options) (*Report, error) {
+	if IsCurveModel(opt.Model) {
+		return fitCurveReport(points, opt)
+	}
 	opt, err := resolveOptions(opt)
 	if err != nil {
 		return nil, err
@@ -157,16 +160,7 @@ func resolveOptions(opt Options) (Options, error) {
 	if !slices.Contains(SigmaBases(), opt.Weights.LimitSigma) {
 		return opt, inputErr("options.weights.limit_sigma", "unknown σ basis %q", opt.Weights.LimitSigma)
 	}
-	if opt.Confidence == 0 {
-		opt.Confidence = 0.95
-	}
-	if !(opt.Confidence > 0 && opt.Confidence < 1) {
-		return opt, inputErr("options.confidence", "must lie in (0, 1), got %v", opt.Confidence)
-	}
-	if opt.Policy.isZero() {
-		opt.Policy = defaultPolicy
-	}
-	if err := opt.Policy.validate(); err != nil {
+	if err := resolveConfidencePolicy(&opt); err != nil {
 		return opt, err
 	}
 	return opt, nil
@@ -521,4 +515,19 @@ func (d *dataset) heaviestLevel(w []float64) LevelShare {
 		}
 	}
 	return best
+}
+
+// resolveConfidencePolicy applies the defaults of the confidence level
+// (0.95) and the policy (DefaultPolicy) and validates both.
+func resolveConfidencePolicy(opt *Options) error {
+	if opt.Confidence == 0 {
+		opt.Confidence = 0.95
+	}
+	if !(opt.Confidence > 0 && opt.Confidence < 1) {
+		return inputErr("options.confidence", "must lie in (0, 1), got %v", opt.Confidence)
+	}
+	if opt.Policy.isZero() {
+		opt.Policy = defaultPolicy
+	}
+	return opt.Policy.validate()
 }

@@ -129,6 +129,12 @@ func (r *Report) Predict(responses []float64, dilution float64, confidence float
 	}
 	pr := Prediction{Readings: m, MeanResponse: y0, Dilution: dilution, Cautions: Cautions(),
 		Interval: Interval{Level: confidence}}
+	if r.Curve != nil {
+		if err := r.predictCurve(y0, m, confidence, &pr); err != nil {
+			return Prediction{}, err
+		}
+		return pr, nil
+	}
 	if x1, x2, amb := r.rootsInRange(y0); amb {
 		// A curve that is not monotonic over its range gives this response
 		// at two concentrations: neither is released (see monotonicCheck).
@@ -321,6 +327,8 @@ func (r *Report) predictable() error {
 	switch r.Model {
 	case Linear, LinearOrigin, Quadratic:
 		p = nParams(r.Model)
+	case FourPL, FivePL, Power, ExpSaturation, ExpSaturationOffset:
+		p = curveOf(r.Model).NumParams()
 	default:
 		return inputErr("report.model", "unknown model %q", r.Model)
 	}
@@ -341,6 +349,12 @@ func (r *Report) predictable() error {
 	}
 	if !(r.WeightScale > 0) || !fin(r.WeightScale) {
 		return inputErr("report.weight_scale", "must be finite and > 0")
+	}
+	if r.Curve != nil {
+		if !(r.Curve.ResponseFloor > 0) || !fin(r.Curve.ResponseFloor) || !fin(r.Curve.Theta) {
+			return inputErr("report.curve", "a non-linear curve needs a response floor > 0 and a finite θ")
+		}
+		return nil
 	}
 	switch r.Weighting {
 	case WeightNone:

@@ -65,6 +65,13 @@ func (r *Report) fitted() bool {
 // Fitted returns ŷ(x) = f(x)ᵀβ, with f(x) = (1, x), (x) or (1, x, x²); ok is
 // false when r holds no fit of a least-squares model.
 func (r *Report) Fitted(x float64) (y float64, ok bool) {
+	if c := curveOf(r.Model); c != nil {
+		if len(r.Coefficients) != c.NumParams() {
+			return 0, false
+		}
+		y = c.Eval(x, r.Coefficients, nil)
+		return y, Finite(y)
+	}
 	if !r.fitted() {
 		return 0, false
 	}
@@ -82,6 +89,9 @@ func (r *Report) Fitted(x float64) (y float64, ok bool) {
 // 3rd ed., §5.2, from memory). ok is false when r holds no fit, no usable
 // p×p covariance, no degrees of freedom or a confidence outside (0, 1).
 func (r *Report) MeanBand(x float64) (h float64, ok bool) {
+	if c := curveOf(r.Model); c != nil {
+		return r.curveMeanBand(c, x)
+	}
 	p := NumParams(r.Model)
 	if !r.fitted() || len(r.Covariance) != p {
 		return 0, false

@@ -231,6 +231,10 @@ type Report struct {
 	Verdict  string // "pass" or "fail", from the checks the policy makes mandatory
 	Cautions []string
 	Engine   string // EngineVersion
+	// Curve holds what a non-linear model adds (parameter names, solver
+	// outcome, θ, precision profile, anchors); nil for the least-squares
+	// models.
+	Curve *CurveDetails `json:",omitempty"`
 }
 
 // WeightScore is one candidate of automatic weight selection.
@@ -335,7 +339,7 @@ type Prediction struct {
 // working range (then Concentration and StandardError are 0 and mean nothing).
 func (p *Prediction) HasEstimate() bool {
 	for _, f := range p.Flags {
-		if f == FlagNoRoot || f == FlagAmbiguous {
+		if f == FlagNoRoot || f == FlagAmbiguous || f == FlagAboveAsymptote || f == FlagBelowAsymptote {
 			return false
 		}
 	}
@@ -349,4 +353,8 @@ type Interval struct {
 	High    float64
 	Level   float64
 	Bounded bool
+	// HighOpen: the interval is bounded below by Low and open above (+∞),
+	// as when the inverted prediction band of a non-linear curve does not
+	// close under its upper asymptote. Bounded is false.
+	HighOpen bool `json:",omitempty"`
 }

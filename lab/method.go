@@ -74,7 +74,7 @@ func (m *Method) Analyte(name string) (Analyte, bool) {
 }
 
 var (
-	models     = []calib.Model{calib.Linear, calib.LinearOrigin, calib.Quadratic}
+	models     = append([]calib.Model{calib.Linear, calib.LinearOrigin, calib.Quadratic}, calib.CurveModels()...)
 	weightings = calib.Weightings()
 )
 
@@ -100,7 +100,11 @@ func CheckMethod(in MethodInput) error {
 	if !slices.Contains(models, in.Model) {
 		return FieldError("/model", "unknown model %q", in.Model)
 	}
-	if !slices.Contains(weightings, in.Weighting) {
+	if calib.IsCurveModel(in.Model) {
+		if !slices.Contains(calib.CurveWeightings(), in.Weighting) {
+			return FieldError("/weighting", "the non-linear model %s takes the weighting none, 1/y^2, 1/s^2 or power_of_mean, not %q", in.Model, in.Weighting)
+		}
+	} else if !slices.Contains(weightings, in.Weighting) {
 		return FieldError("/weighting", "unknown weighting %q", in.Weighting)
 	}
 	if !(in.Confidence > 0 && in.Confidence < 1) {

@@ -85,6 +85,18 @@ func AltText(r *calib.Report, analyte, unit string) string {
 
 // equation writes ŷ = f(x)ᵀβ with coefficients to 4 significant figures.
 func equation(c curve) string {
+	if names := calib.ParameterNames(c.model); names != nil {
+		var b strings.Builder
+		b.WriteString(calib.Equation(c.model))
+		for i, n := range names {
+			sep := ", "
+			if i == 0 {
+				sep = " with "
+			}
+			b.WriteString(sep + n + " = " + sig4(c.coef[i]))
+		}
+		return b.String()
+	}
 	terms := calib.Terms(c.model)
 	if c.model == calib.LinearOrigin {
 		return "y = " + signed(c.coef[0]) + terms[0]

@@ -23,6 +23,9 @@ type curve struct {
 // give one.
 func newCurve(r *calib.Report) (c curve, ok bool, err error) {
 	p := calib.NumParams(r.Model)
+	if calib.IsCurveModel(r.Model) {
+		p = len(calib.ParameterNames(r.Model))
+	}
 	if len(r.Coefficients) == 0 {
 		return c, false, nil
 	}

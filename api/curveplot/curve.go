@@ -85,9 +85,17 @@ func curvePanels(r *calib.Report, o Options, c curve, fitted bool) (top, bottom 
 	top = newPlot(curveTitle(o), xLabel, "Response")
 	bottom = newPlot("", xLabel, "Studentised residual")
 
+	// Logistic curves are drawn on a log concentration axis, where a
+	// reading at zero has no place.
+	logX := r.Curve != nil && r.Curve.LogX
+	if logX {
+		for _, pl := range []*plot.Plot{top, bottom} {
+			pl.X.Scale, pl.X.Tick.Marker = plot.LogScale{}, plot.LogTicks{Prec: -1}
+		}
+	}
 	var accepted, excluded, resid plotter.XYs
 	for _, p := range r.Points {
-		if !calib.Finite(p.X) || !calib.Finite(p.Y) {
+		if !calib.Finite(p.X) || !calib.Finite(p.Y) || (logX && !(p.X > 0)) {
 			continue
 		}
 		if p.Excluded {
@@ -136,6 +144,11 @@ func curveDomain(r *calib.Report, accepted plotter.XYs) (lo, hi float64) {
 			return 0, 0
 		}
 	}
+	if r.Curve != nil && r.Curve.LogX && lo > 0 {
+		// A log axis: 5 % of the span in log x on each side.
+		f := math.Pow(hi/lo, 0.05)
+		return lo / f, hi * f
+	}
 	pad := 0.05 * (hi - lo)
 	nlo := lo - pad
 	if lo >= 0 && nlo < 0 {
@@ -155,6 +168,9 @@ func addModel(p *plot.Plot, r *calib.Report, c curve, lo, hi float64) error {
 	band := c.band
 	for i := 0; i <= curveSamples; i++ {
 		x := lo + (hi-lo)*float64(i)/curveSamples
+		if r.Curve != nil && r.Curve.LogX && lo > 0 {
+			x = lo * math.Pow(hi/lo, float64(i)/curveSamples)
+		}
 		y := c.at(x)
 		if !calib.Finite(y) {
 			continue
@@ -205,6 +221,14 @@ func modelName(m calib.Model) string {
 		return "linear through origin"
 	case calib.Quadratic:
 		return "quadratic"
+	case calib.FourPL:
+		return "four-parameter logistic"
+	case calib.FivePL:
+		return "five-parameter logistic"
+	case calib.Power:
+		return "power"
+	case calib.ExpSaturation, calib.ExpSaturationOffset:
+		return "saturating exponential"
 	}
 	return "linear"
 }

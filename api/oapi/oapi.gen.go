@@ -25,6 +25,7 @@ import (
 // Defines values for CheckName.
 const (
 	CheckBackCalculation       CheckName = "back_calculation"
+	CheckConvergence           CheckName = "convergence"
 	CheckDrift                 CheckName = "drift"
 	CheckHomoscedasticity      CheckName = "homoscedasticity"
 	CheckIntercept             CheckName = "intercept"
@@ -33,6 +34,7 @@ const (
 	CheckMinLevels             CheckName = "min_levels"
 	CheckMonotonic             CheckName = "monotonic"
 	CheckOutliers              CheckName = "outliers"
+	CheckPrecisionProfile      CheckName = "precision_profile"
 	CheckRSquared              CheckName = "r_squared"
 	CheckRelativeStandardError CheckName = "relative_standard_error"
 	CheckResidualRuns          CheckName = "residual_runs"
@@ -43,6 +45,8 @@ const (
 func (e CheckName) Valid() bool {
 	switch e {
 	case CheckBackCalculation:
+		return true
+	case CheckConvergence:
 		return true
 	case CheckDrift:
 		return true
@@ -59,6 +63,8 @@ func (e CheckName) Valid() bool {
 	case CheckMonotonic:
 		return true
 	case CheckOutliers:
+		return true
+	case CheckPrecisionProfile:
 		return true
 	case CheckRSquared:
 		return true
@@ -97,6 +103,30 @@ func (e ControlRule) Valid() bool {
 	case Rule41S:
 		return true
 	case RuleR4S:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for CurveNonlinearOutcome.
+const (
+	Converged      CurveNonlinearOutcome = "converged"
+	IterationLimit CurveNonlinearOutcome = "iteration_limit"
+	Singular       CurveNonlinearOutcome = "singular"
+	Stalled        CurveNonlinearOutcome = "stalled"
+)
+
+// Valid indicates whether the value is a known member of the CurveNonlinearOutcome enum.
+func (e CurveNonlinearOutcome) Valid() bool {
+	switch e {
+	case Converged:
+		return true
+	case IterationLimit:
+		return true
+	case Singular:
+		return true
+	case Stalled:
 		return true
 	default:
 		return false
@@ -249,17 +279,32 @@ func (e MethodRequestExpiredStandards) Valid() bool {
 
 // Defines values for Model.
 const (
-	ModelLinear       Model = "linear"
-	ModelLinearOrigin Model = "linear_origin"
-	ModelQuadratic    Model = "quadratic"
+	ModelExpSaturation       Model = "exp_saturation"
+	ModelExpSaturationOffset Model = "exp_saturation_offset"
+	ModelFivePL              Model = "5pl"
+	ModelFourPL              Model = "4pl"
+	ModelLinear              Model = "linear"
+	ModelLinearOrigin        Model = "linear_origin"
+	ModelPower               Model = "power"
+	ModelQuadratic           Model = "quadratic"
 )
 
 // Valid indicates whether the value is a known member of the Model enum.
 func (e Model) Valid() bool {
 	switch e {
+	case ModelExpSaturation:
+		return true
+	case ModelExpSaturationOffset:
+		return true
+	case ModelFivePL:
+		return true
+	case ModelFourPL:
+		return true
 	case ModelLinear:
 		return true
 	case ModelLinearOrigin:
+		return true
+	case ModelPower:
 		return true
 	case ModelQuadratic:
 		return true
@@ -549,15 +594,16 @@ func (e VerificationKind) Valid() bool {
 
 // Defines values for Weighting.
 const (
-	WeightingAuto     Weighting = "auto"
-	WeightingInvS2    Weighting = "1/s^2"
-	WeightingInvSqrtX Weighting = "1/x^0.5"
-	WeightingInvSqrtY Weighting = "1/y^0.5"
-	WeightingInvX     Weighting = "1/x"
-	WeightingInvX2    Weighting = "1/x^2"
-	WeightingInvY     Weighting = "1/y"
-	WeightingInvY2    Weighting = "1/y^2"
-	WeightingNone     Weighting = "none"
+	WeightingAuto        Weighting = "auto"
+	WeightingInvS2       Weighting = "1/s^2"
+	WeightingInvSqrtX    Weighting = "1/x^0.5"
+	WeightingInvSqrtY    Weighting = "1/y^0.5"
+	WeightingInvX        Weighting = "1/x"
+	WeightingInvX2       Weighting = "1/x^2"
+	WeightingInvY        Weighting = "1/y"
+	WeightingInvY2       Weighting = "1/y^2"
+	WeightingNone        Weighting = "none"
+	WeightingPowerOfMean Weighting = "power_of_mean"
 )
 
 // Valid indicates whether the value is a known member of the Weighting enum.
@@ -580,6 +626,8 @@ func (e Weighting) Valid() bool {
 	case WeightingInvY2:
 		return true
 	case WeightingNone:
+		return true
+	case WeightingPowerOfMean:
 		return true
 	default:
 		return false
@@ -808,7 +856,7 @@ type Curve struct {
 	Cautions Cautions `json:"cautions"`
 	Checks   []Check  `json:"checks"`
 
-	// Coefficients In model-equation order: linear [b0, b1], linear_origin [b1], quadratic [b0, b1, b2].
+	// Coefficients In model-equation order: linear [b0, b1], linear_origin [b1], quadratic [b0, b1, b2]; non-linear models as `Model` says (names in `nonlinear.parameter_names`).
 	Coefficients []float64 `json:"coefficients"`
 
 	// Confidence Confidence level of the band and of default intervals.
@@ -849,10 +897,30 @@ type Curve struct {
 
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
+	// Non-linear models (Levenberg–Marquardt, self-started), logistic in
+	// log concentration: `4pl` y = d + (a − d)/(1 + (x/c)^b), coefficients
+	// [a, b, c, d]; `5pl` y = d + (a − d)/(1 + (x/c)^b)^g, [a, b, c, d, g];
+	// a is the response at zero, d at infinite concentration, c > 0 the
+	// inflection, b > 0 the slope factor for every curve (a < d rising,
+	// a > d falling; libraries whose b is negative for a rising curve
+	// differ in sign), g > 0 the asymmetry (g = 1 is the 4PL).
+	// `power` y = a·x^b, [a, b]; `exp_saturation` y = a·(1 − e^(−b·x)),
+	// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
+	// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
+	// `power_of_mean`.
 	Model Model `json:"model"`
 
 	// N Readings in the fit (excluded ones not counted).
 	N int `json:"n"`
+
+	// Nonlinear What a non-linear curve adds: parameter names (in coefficient order),
+	// the solver's outcome, the variance function's θ and how it was
+	// estimated, anchors, and the precision profile with the working range
+	// where the CV of the back-calculated concentration stays under
+	// `profile_limit_pct`. Absent for straight lines and quadratics.
+	// Predictions from these curves use the inverted prediction band
+	// (`method` `band_inversion`).
+	Nonlinear *CurveNonlinear `json:"nonlinear,omitempty"`
 
 	// Points Every standard reading, fitted or excluded, grouped by level in acquisition order.
 	Points []CurvePoint `json:"points"`
@@ -949,6 +1017,35 @@ type CurveList struct {
 	NextCursor *NextCursor `json:"next_cursor"`
 }
 
+// CurveNonlinear What a non-linear curve adds: parameter names (in coefficient order),
+// the solver's outcome, the variance function's θ and how it was
+// estimated, anchors, and the precision profile with the working range
+// where the CV of the back-calculated concentration stays under
+// `profile_limit_pct`. Absent for straight lines and quadratics.
+// Predictions from these curves use the inverted prediction band
+// (`method` `band_inversion`).
+type CurveNonlinear struct {
+	// Anchors Level labels of anchor calibrators (label starting with anchor, any case): fitted, not judged.
+	Anchors    []string `json:"anchors"`
+	Criterion  string   `json:"criterion"`
+	Iterations int      `json:"iterations"`
+
+	// LogX The curve is drawn on a log concentration axis.
+	LogX            bool                  `json:"log_x"`
+	Outcome         CurveNonlinearOutcome `json:"outcome"`
+	ParameterNames  []string              `json:"parameter_names"`
+	Profile         []ProfilePoint        `json:"profile"`
+	ProfileLimitPct float64               `json:"profile_limit_pct"`
+	Theta           float64               `json:"theta"`
+	ThetaMethod     string                `json:"theta_method"`
+
+	// WorkingRange Working range, from the lowest to the highest accepted non-zero standard (a blank in the fit does not extend it); null when there is none.
+	WorkingRange *Range `json:"working_range,omitempty"`
+}
+
+// CurveNonlinearOutcome defines model for CurveNonlinear.Outcome.
+type CurveNonlinearOutcome string
+
 // CurvePoint One standard reading with its diagnostics; a diagnostic is null when it does not exist (no fit, or no root for back-calculation, or nominal 0 for relative error).
 type CurvePoint struct {
 	// BackCalculated Concentration read back from the curve.
@@ -990,6 +1087,17 @@ type CurveSummary struct {
 
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
+	// Non-linear models (Levenberg–Marquardt, self-started), logistic in
+	// log concentration: `4pl` y = d + (a − d)/(1 + (x/c)^b), coefficients
+	// [a, b, c, d]; `5pl` y = d + (a − d)/(1 + (x/c)^b)^g, [a, b, c, d, g];
+	// a is the response at zero, d at infinite concentration, c > 0 the
+	// inflection, b > 0 the slope factor for every curve (a < d rising,
+	// a > d falling; libraries whose b is negative for a rising curve
+	// differ in sign), g > 0 the asymmetry (g = 1 is the 4PL).
+	// `power` y = a·x^b, [a, b]; `exp_saturation` y = a·(1 − e^(−b·x)),
+	// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
+	// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
+	// `power_of_mean`.
 	Model    Model    `json:"model"`
 	RSquared *float64 `json:"r_squared"`
 	RunID    UUID     `json:"run_id"`
@@ -1012,6 +1120,11 @@ type CurveSummary struct {
 	// back-calculated standards among those in which no level holds more
 	// than half of the total weight. Every curve reports all candidates in
 	// `weight_candidates`, also when the method fixed its weighting.
+	// `power_of_mean` (non-linear models only): Var(y) = σ²·|ŷ|^(2θ), θ the
+	// slope of ln(level SD) on ln|ŷ| over the calibrators with
+	// replicates, iterated with a weighted refit (the curve reports θ and
+	// how it was estimated in `nonlinear`). For non-linear models `1/s^2`
+	// weights each calibrator by its own level's SD.
 	Weighting Weighting `json:"weighting"`
 }
 
@@ -1129,8 +1242,11 @@ type InstrumentPredictionRequest struct {
 type Interval struct {
 	Bounded bool     `json:"bounded"`
 	High    *float64 `json:"high"`
-	Level   float64  `json:"level"`
-	Low     *float64 `json:"low"`
+
+	// HighOpen The interval is bounded below by `low` and open above (+∞), as when the inverted prediction band of a non-linear curve does not close under its asymptote; `bounded` is false and `high` null.
+	HighOpen *bool    `json:"high_open,omitempty"`
+	Level    float64  `json:"level"`
+	Low      *float64 `json:"low"`
 }
 
 // LateSampleInput defines model for LateSampleInput.
@@ -1210,6 +1326,17 @@ type Method struct {
 
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
+	// Non-linear models (Levenberg–Marquardt, self-started), logistic in
+	// log concentration: `4pl` y = d + (a − d)/(1 + (x/c)^b), coefficients
+	// [a, b, c, d]; `5pl` y = d + (a − d)/(1 + (x/c)^b)^g, [a, b, c, d, g];
+	// a is the response at zero, d at infinite concentration, c > 0 the
+	// inflection, b > 0 the slope factor for every curve (a < d rising,
+	// a > d falling; libraries whose b is negative for a rising curve
+	// differ in sign), g > 0 the asymmetry (g = 1 is the 4PL).
+	// `power` y = a·x^b, [a, b]; `exp_saturation` y = a·(1 − e^(−b·x)),
+	// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
+	// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
+	// `power_of_mean`.
 	Model                Model  `json:"model"`
 	Name                 string `json:"name"`
 	PendingCurvesInForce bool   `json:"pending_curves_in_force"`
@@ -1226,6 +1353,11 @@ type Method struct {
 	// back-calculated standards among those in which no level holds more
 	// than half of the total weight. Every curve reports all candidates in
 	// `weight_candidates`, also when the method fixed its weighting.
+	// `power_of_mean` (non-linear models only): Var(y) = σ²·|ŷ|^(2θ), θ the
+	// slope of ln(level SD) on ln|ŷ| over the calibrators with
+	// replicates, iterated with a weighted refit (the curve reports θ and
+	// how it was estimated in `nonlinear`). For non-linear models `1/s^2`
+	// weights each calibrator by its own level's SD.
 	Weighting Weighting `json:"weighting"`
 
 	// WeightingOptions A method's weighting options, every default filled.
@@ -1261,6 +1393,17 @@ type MethodRequest struct {
 
 	// Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 	// y = b0 + b1·x + b2·x² (ISO 8466-2).
+	// Non-linear models (Levenberg–Marquardt, self-started), logistic in
+	// log concentration: `4pl` y = d + (a − d)/(1 + (x/c)^b), coefficients
+	// [a, b, c, d]; `5pl` y = d + (a − d)/(1 + (x/c)^b)^g, [a, b, c, d, g];
+	// a is the response at zero, d at infinite concentration, c > 0 the
+	// inflection, b > 0 the slope factor for every curve (a < d rising,
+	// a > d falling; libraries whose b is negative for a rising curve
+	// differ in sign), g > 0 the asymmetry (g = 1 is the 4PL).
+	// `power` y = a·x^b, [a, b]; `exp_saturation` y = a·(1 − e^(−b·x)),
+	// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
+	// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
+	// `power_of_mean`.
 	Model Model `json:"model"`
 
 	// Name A name of an instrument, analyte, method, level or sample.
@@ -1280,6 +1423,11 @@ type MethodRequest struct {
 	// back-calculated standards among those in which no level holds more
 	// than half of the total weight. Every curve reports all candidates in
 	// `weight_candidates`, also when the method fixed its weighting.
+	// `power_of_mean` (non-linear models only): Var(y) = σ²·|ŷ|^(2θ), θ the
+	// slope of ln(level SD) on ln|ŷ| over the calibrators with
+	// replicates, iterated with a weighted refit (the curve reports θ and
+	// how it was estimated in `nonlinear`). For non-linear models `1/s^2`
+	// weights each calibrator by its own level's SD.
 	Weighting Weighting `json:"weighting"`
 
 	// WeightingOptions A method's weighting options; a field left out takes its default.
@@ -1292,6 +1440,17 @@ type MethodRequestExpiredStandards string
 
 // Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 // y = b0 + b1·x + b2·x² (ISO 8466-2).
+// Non-linear models (Levenberg–Marquardt, self-started), logistic in
+// log concentration: `4pl` y = d + (a − d)/(1 + (x/c)^b), coefficients
+// [a, b, c, d]; `5pl` y = d + (a − d)/(1 + (x/c)^b)^g, [a, b, c, d, g];
+// a is the response at zero, d at infinite concentration, c > 0 the
+// inflection, b > 0 the slope factor for every curve (a < d rising,
+// a > d falling; libraries whose b is negative for a rising curve
+// differ in sign), g > 0 the asymmetry (g = 1 is the 4PL).
+// `power` y = a·x^b, [a, b]; `exp_saturation` y = a·(1 − e^(−b·x)),
+// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
+// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
+// `power_of_mean`.
 type Model string
 
 // NextCursor Pass as `cursor`, with the same filters, for the next page; null when
@@ -1412,6 +1571,13 @@ type ProblemField struct {
 	// Pointer The offending field: a JSON Pointer into the body, `/lines/<n>/<column>`
 	// for CSV, or `<in>:<name>` for a parameter.
 	Pointer string `json:"pointer"`
+}
+
+// ProfilePoint defines model for ProfilePoint.
+type ProfilePoint struct {
+	// CvPct CV (%) of the concentration read back from the mean of the typical number of readings at x; null where the curve is flat.
+	CvPct *float64 `json:"cv_pct"`
+	X     float64  `json:"x"`
 }
 
 // QualifierSet The laboratory's qualifier codes and words; each one left out takes the service's default.
@@ -2187,6 +2353,11 @@ type WeightCandidate struct {
 	// back-calculated standards among those in which no level holds more
 	// than half of the total weight. Every curve reports all candidates in
 	// `weight_candidates`, also when the method fixed its weighting.
+	// `power_of_mean` (non-linear models only): Var(y) = σ²·|ŷ|^(2θ), θ the
+	// slope of ln(level SD) on ln|ŷ| over the calibrators with
+	// replicates, iterated with a weighted refit (the curve reports θ and
+	// how it was estimated in `nonlinear`). For non-linear models `1/s^2`
+	// weights each calibrator by its own level's SD.
 	Weighting Weighting `json:"weighting"`
 }
 
@@ -2201,6 +2372,11 @@ type WeightCandidate struct {
 // back-calculated standards among those in which no level holds more
 // than half of the total weight. Every curve reports all candidates in
 // `weight_candidates`, also when the method fixed its weighting.
+// `power_of_mean` (non-linear models only): Var(y) = σ²·|ŷ|^(2θ), θ the
+// slope of ln(level SD) on ln|ŷ| over the calibrators with
+// replicates, iterated with a weighted refit (the curve reports θ and
+// how it was estimated in `nonlinear`). For non-linear models `1/s^2`
+// weights each calibrator by its own level's SD.
 type Weighting string
 
 // WeightingOptions A method's weighting options, every default filled.
@@ -9021,453 +9197,473 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P3dbhxJlieIv4r92VNQMMsZDFJUZopEAcOkpCp1SyklKWX2TEVWuNHdguEtD7OQmQXJqEz90bsNLHpu",
-	"Zy4GmKsFZj+ue4BFYbF32beL6WfYepLFOcfM3NzDI+hBUcqsXhVQKYa727fZsfP5Oz9sZWo6U1JIa7YO",
-	"f9iaCJ4LjX+eCqsXx2MrNPzKhcl0MbOFkluHW2ciUzI3zCp2xQvLzsVYacE0FCnkRX8r2dLi7bzQIt86",
-	"tHouki2TTcSUQ1XTQhbT+XTrcJBs2cVMbB1uFdKKC6G33r17l2zNuOZTYV03Tub6Ujx9tNyHVxPBMnh5",
-	"z7AihyYLeDzjdrKVbEk+xYrztV35N1qMtw63/mq3moVdemt2X79++mgL+vM0F9OZskJmi78Ri+WOHLOs",
-	"LIS0O9lEGSHZG7FgPc6gPCsM4+xCqZxlE1VkYpvZCbdsyt8IeAMTVoh8KKGLwlhm+FgcMSMEsxPB1Exo",
-	"Dq3cMyxqsz+UfrS0XtV4o77uQGdr886vnwl5YSdbh3v7XyawDuE3zLq1QkOdf/j98c6/5zt/HOw87I8O",
-	"d77/YS/Z2//y3b/ZCstlrC7kBU2ONFbPp0La9hUqwntW5ELaYlwInTBu2EwZK3J2VdgJK6xhei7NqlWs",
-	"Grntaj4NjWO3X/ILcTLXRun2bqdSXNtRhl+kTI1xOWZaXBZqbtiMX4gjxs8NDGusNL4dF9pYfBVG8XYu",
-	"9KIaBlW31bXLrn/Q3dO5XHUE9Fx+2APwDsqbmZJG4IH8iuentFvhV6akdYvPZ7OyyHC/7s60Oi/F9Nd/",
-	"Z6CjP3Rs8SWVokbrQ33Oy7HSU5Ezs5CWXyfsSit5wWBHMqUZZ5e8nAum5tYUOR0fqvaQTX3Zofzrsxdf",
-	"J4wz2sHsaiK0YJzJ+fRcaHYuSiUvTMK4ZHP5RqorycaFKHMo4g4IU3ooNZcXgl0WquRW4FtcahZIFx3z",
-	"XAnDpLIMpmYBx/ZdsnWi5Lgsso86e7hRhFFznQG5NJZbARv3vAAiji+J/vQ40VQGW11ciZzxUgueLxLG",
-	"h5JewYlVc8s4Gxc2YTwUhhc08XwqWFGRIiSJxhZlyQo5hOFfTOy2m48n2I1cyI89IVa9EZKVPHtjmLiE",
-	"5TOZmglWFkiYCsnS6x1/dHbwnUn7W0j0YCfw8rHWSn/MbvuGmYCW+wyGca7yBTN8YZiS5YINt4raR8Mt",
-	"xmVeW2QgFu+Sra+VfaLmMv/Y8w6UKQ/bsTok4rowFnv2ki9KxfNXSj3j+kJ87A7ijIrrTAh3OozQl0Lf",
-	"MyxTclxczLXIWVlMC+rtmdCXRSZeS37Ji5Kflx+9wzm3/JwbwTIuYSbPYa15NhE5k+oqCWMoMgEciZnM",
-	"rQXyl6srmSBB642Rhl7pwiKPUhi8ubnM3OgN1Ji7PXYuMj43Aq/t0HZhhhIIK5f5+YJYlCY3uRPYybbB",
-	"uq93I8YTx/tKqedcLtylY34WMnHPhNOjgXYWhqlLoXEG3E64q+G+lnxuJ0oXfxQf9Wg+L4wp5EVSXZdJ",
-	"uASVhgtBvRE5OxdcC02z0hj0d999t3M8txMhLfRSLDMs6VdYOqWrgkuWIo1KGbdWF+dzK1jv9MkJ+/yL",
-	"B4Pt9VJEkxWlqZtplQlj4BA+lrawi485g9+JstxxXEohZ3NLXMC5FvwNcvvzUnhe0h3HIzcDJkWyaBgc",
-	"26FU47GQORxRZD8qCj4vhbs2X0szn82UtiJ/LvKCv8L5+NgsBR6Je4adUKs70As4HECFlGxIMYxnmZhZ",
-	"00ee1rUBXTjG50BsnsK0Yd/zvIAyvHypoQJbCLN1OOalEc2eVKWZnWhhJqrMzRHOJPahFGMLfCGzKHVB",
-	"l4S8KKRAqWrM56VlPTMhZq8s6epXEj+cCjtROW7FWdSPH7bOefZmlPEyG5XqamRVKTT0YDQjxk5cZ+Xc",
-	"FJfiuRd2af/C7uB263ArV3O4KBKQyuiDvcEgaZONiTeFJa/anBZyNOPGjMaaZzQNP6ytu3PNH2ckEzVV",
-	"JhM5N7bICrsY8XI2uXE3HuNH7xLicGDRNywHvN5IjUfjYtOSUy5zbpVuEf9PJgI4yCsQ/tmYF+Vc07+0",
-	"1S6FzovMHuEPZSdCG8a1YDy/LIzSC5TbrJiaG8VBaOdrPhXUn+unVGivml+uNQdxcy6Lt3Ph3sNquQGI",
-	"cuNRX4+0+bBbAbZyKS5FaZyOgj59EJfbX1YUUUE9Mm/nXNNF+R77X81tWQg9ypR6Y0b5Bxusb8fYOeoj",
-	"/ig+XFugT9lwvS+FLsbuxlimBPVt/+OvHv0IUndUhJg/rnPWe3ry7e7JybfbbMoXDGgr4xe8kCB8WDOU",
-	"Uk0LkFBQZu+zR44K7w8SxoETYq/P2OOXx+zsu50vDz5nz5EKsy8Hg8Gjocx4WZy7GyVuno5Yyc+VxqN6",
-	"zzjyzYywBhpm6sopzz7AjL8LT9T534nMwoRWV9NLVRbZYsOb7TFKpeFSg3tprHQmEn9vmerG2viKWh7q",
-	"+184m1wsHUqvviY6FG65JDqUar0iOpSrXRCb0/MaBW8h1516UCPWXUrUSO+tKGwXSrpBqQZd7FCyTuU6",
-	"FNiExgGPS3SuLBUow0BKbqV4hvXyiIitJl/ISt7YzXex5PP7eKEaW6Ntw648N6uPY7KWWKwnBM19Ut+J",
-	"y+ewtmbtS7+8jeIDtnYNv2+jwn57NO02priQWBHIDjjB/a21d8Cg/yC+A/qDwWCvZY8dS14urLiR2tfp",
-	"NWnsu5sxkq23cy7tTUVcZ77Bb98hd3hjmdfwTXMXYv9c+dZpjhvaUISTjFNpsGV4/WVgJ0D81QKEXRCJ",
-	"QQg2ffadUyEsf269WWQoq/MJdRg+nZXCsIxrvWBpYUbBspGyc4GGg7R6RIozUnoXcNVaK3InGQ6l/44h",
-	"K8KOR9e7x6PCBEYHylaDypTMhLT4rUywN9z1x4kOT8+iOstCmJot46qQubpivRmcJWm9GsHzQkqbe2wq",
-	"uGRPz5iv5cizCUP5+eDPf/+f9vYfsF8lLFPTqZLs6cnLnednbIbnGHiKsVZTNhVTpRfbON6SX1wImn3Q",
-	"10xEmZPKmdYC7ClkdCkMu/6//8cB++f/zPKinCNl/Of/zMbE46lyPhXsn//kh8unai4tPMj1gnk6AsyN",
-	"DXUX8mIoYaclTIOO2nXj7ZyXsPtdP2q8Hs8yLfLCuhnW4mJewjssePbiJYxbDCWa6Y4Yr+piM6GNks7k",
-	"4W0BWph5aYlbrJ/TXGTFlJdmmaKcQlfBKI4K1CmXC+Y/RnWq4DksXEV2LCN1sunHVGavndGMbuZcWIGz",
-	"NkLl4wrpZ5104E/NyJ+QzShPYUa0I0eT4mKymueIueebBJaqTriC7qRKv8b6Rm7sG//lmUBiFrbhrWe4",
-	"qqE7xU22or0xcntjeZ95eek+611NhGSp32UpHEWyS2/Xt1R8b+21+F200fN5XtjHl6IDNa8fkEpCaOhH",
-	"QRt6xQ3LlRQJE/2LPkv1XPYzLbgVeZqwFKltn0ht9ZvPZlpdxk+0gG6KPO0vuyUk0IM2yz5w255ykvUP",
-	"FbQcKmqvp7Hw3IodW0xF27e5sLwo25nIGde2yOYl1yZhhczKOSp3uTezarQvcKNkv9XLIr6Gud3yA0y2",
-	"Ag/mWv9+1To+UxcbrqK49E5BncSZaLcsyTONEbia2/p6wvH2MCs2D10QQJhxo8vc6ZoPnWoZGTl/AUfG",
-	"unAPZrqwQhecLrvZ/LwsDJjJLuZFDoVbdAj1e2Uo6xeL0zDA/QLqZTbTIhO5wKpocdn5ouW2GcrgM1UK",
-	"boTz6fEzvbS7poX0Cr9laRFFyQ2XF5ZwbkW+PNNP4HOGhAVZDKicZWpe5swZF31ZnC3JUhAIRI7EB9vC",
-	"mUlpS6Zkm76aLKKtfa5UKbisH5ulMQfKu3ygIp0IbgXoEdfOneiIyXlZNkcw4bBVJHqLXOHfNgykne2H",
-	"WsicS8qh9UJ/c7sKOxE6MiI4py9kDahHQLVzUdcSo4b4qjDCDSxWEy9PXheRoaZnoJWKZjuqjOzxrUPR",
-	"Ipif6NTZynQCbBUep1YKauDcgBi6Yh3R6c1/A0szFdzgmUXWMl7K916wdnmm6qHfcWGakuqU1AVQN1Vr",
-	"yW41720eg/DSX0UR7ZqhmvCQpZXID3ceyfxpMpRpJO/Dm6aoD8+CtA50qlASngX5HCvRAt5cisD9jcgO",
-	"m7A0iOtYCmSiOS9HILLDAyeXG6xlqqSyShYZvMl1MbZpn0VPWS/MGRBBt2G2mVsEQ3IUyVdWAWGBfZPZ",
-	"csFCJWRmRwlI6Tco/nF5Ifq+QXQ78KvEuGWFvBDGHmIRKa6Ci6gp1UzUhDMUl1A4eBSssui4VLkswttK",
-	"htsfsKkylgGJl3YoPVdCbZikcoD6Thh7AaIosSkksrKeEWIo098+fsV2L/d2rRYyN+l2nz2tHXU2l6Uw",
-	"JiYdZWFQg824GcowqYk7i1A4GDnxqIyBpwDmRrK9AWv0cyjR0ybx7VAF1VL1kKjTUy/psQbBBOetNAjX",
-	"o0KOcm5F6klxfTEqSqzn0tm50QzgK2BTjrdyaY6iUd8zLBXXMziuYZ+a1JHRwg5lvcvV/lI6zGWCvUaa",
-	"C3PolP9yPl2hVqsr1FpUabEyzB2vrWQr1n6tOFuxJgy/ik5WpfDCnvi9v5Vs4SYnIlWf6ojkOGKbbF3v",
-	"wMh2LrnGOYYhIhF6Do6+bpj0wI8Vfz3j2ZsX4yeF9Q9+tzxmfP4Vz96c1MaNj0/Pwtjpt5uAM9fnx274",
-	"+PJpNAfua5qIU5oHfPaimgzqbzQj+OCRmxb84dsxT+UjnBlysqzULW0E2FugGnoZp4SozjzIbjcoBUEO",
-	"Df+7QSgE588C2cOW+/BK7ZgCVB1Z+Iq0kkCecPNc8tIkbNB/APRy0H/48OGNCsuHDx/WVJYP2ntltSqf",
-	"we1nNlTdnU3E1YRrZLehEnKHMqz39OwF++LLLwY7+9v+Fg+Oo+AwVhYSPaWbl3abLIlaho4KfleiVFcd",
-	"C+D6i44fX3EtQabfoEO+SNceNdgU1716PY2O1Ead1CatlTWhpTqdl63MSXV7Ab/XCz+FZbzsJ+ykLGSf",
-	"nUzEtM/2v2C9vYdf7m2zg4f3tw9Zurezb9IhMtqkHDwXCyVz9tM/7cNF23P93j6CT++bFF10wjf32dmj",
-	"I5buQyXMXim426UR2RwIiv8s3NRYI+63I5ae7hxQGRYVSaD6oeTn6lKwX+P33pcKOW10+b5if/7H/7hP",
-	"LR/s7JmUjdVcs+WWhzI0vRc3vTe4TpkVslbEeRDh16jGVePAdtTvIZiyrWQLpmMr2dqnXzCcrWQL+gPv",
-	"BtcdKT4s6h7VAH/d93/th2enB/6vg73wHdQPO2NFTMSLGX87F+DHbYRlFMjAenCMPz+Y6+poz4ByyAuv",
-	"fPLxJQ/29jvFm4x2vv/1v2kTIzAKaFOjgtfYk8aIfRe4EMGhk6Yu1LqPOWzyEtjbTInxuMgKIS3yvvX7",
-	"3KQk5WbqkuuCy0yk6NcjpjO7SIi1pRNtSMskBdQOzeB3QPYSljrBDzmndAzycuLqRbcilJ6HEqTnFk00",
-	"z4hMjLhtFdsqpgsEXv91/cpYp9LilR1r6V0WaWrWip/+OyiDY9rMQt5mHY9XZnngTyWbqlyUO+LtnKy0",
-	"SudCHzK4cbhmvz8fJOx87/vEPRgpXVwUkv0en72d81xzEEbddwk73/++5qXVzRjv1DX327q/mgk4abn6",
-	"YRHPSRRB+4GXvANL0MmmnGxVW7WtXf8OmHFdXPuG47lOmPnpv/X+9v/5P/7+u7/d/vP/8H/99H+CeebK",
-	"ANsUfUfzXZuyO5u79RNLeuT1x8EFsfBg0EPLoFUbnYx83GL9cZwsy8WFFmC/G7OxFiJX04RJuGPYLNKR",
-	"ROYcckcdXQptWtnVV5GlD/YzfU9kJYhbFINmvV4dv9/d6w/6g3YduXOBUvKmY/g4fPgu2QKjoGnTGWYW",
-	"LA/oZksdoe45HZdUXsXV2d/xSWGflPyi7fxPBL8shLEkvd1UEco+ZxOuUQNW5N3i3pI46rBVOxk8ZxrG",
-	"mcLYQmaWzq/xIsWY5Ij1dr0ycOBrB0RfwWlAQbm1e/RqBDro1ZuKPmL+o/bzAXd7ret7bV1HkntTz5/j",
-	"R6C4bDs+7lauJoz1cJPmaHUXXgMxl6iAuHEyZ6povR/Iqy7oHhw3kPjhKs18qwm70Go+g6iHhSPHhaR7",
-	"1BTVzdLdhRem9iV0q21X11ytmpEFEDEn8jqVhZvACj0tJJGF3pxkWeeoVLvdtm+p4kZt203jOsWP3kVa",
-	"DZOvoY9h6nNxWVDXTW+xe72deKb5v//XK/YbJtkVjpuZjJfitgNAI8yNI6Cv3PdwFkYKSTwvyxfjrcPf",
-	"dyEZ3zc50JdaYIiwkoxLFghuOG81BxMyjWrhtiFp1MnDbdSdaDWY1JbQfT/59MGKax4NpUt7+30vb2O5",
-	"nXc7JWf0aeSvVB/G65PXz1mmKrFqhatNUOAsEUjP74w6Ua5v3deBgrnr7MZy7jPQA+BmHmVc5kXOrVhJ",
-	"msIXoLbOlBZOs5zyuVVp8MdBYeIaCDRWjAblsngjWA9lENh1pPCFKYrYgRWFtzuTMaJGJ76XbbTMj1VJ",
-	"sPW23j+/U1eucQqIwEOeO/ZFwk4rCyPQncbMp/CP9DgTaURn2pmbMKruZ/i7UGT5IL/y0eSCzaFPqG9W",
-	"UjAH+UBeGLQ8dIoxMAqvqbg3I9RLi/zOe+XaziZKGWE8JoGpZN2E8dKoShPvbn7aA1yiMiRAGjhzW7UR",
-	"naR8Lmg/5o1RheHe+biirnLzhi42bPyPQqvRhMu8dIu8vLngkzoxMBTI6Pz72JXQoNKYWecNoFU+z+AY",
-	"FXJcyMIKvz+PSKr38yIF41oZcbOvBqEvEAEP3Noyb5bUES682O1on+et4l3dPvttNMaz7G1nsjmNDcl6",
-	"+TapyZD16x5lorolBBoI9pVI6A2sWdAIBM7XMxwVfQ23RlJTd9SEvUgbsSRMteo/EVNGPlE6u1mp1FC5",
-	"rHBImCoyGOImRTmouzB5zk3R6vGycN4C3gO1iv8oJNhDc9NK/G6lmvEKtptv5vl0yvWCRMhZoYVZLW8X",
-	"IAXxS6JImQA2umbfc3YKhngqNRuBkmLlBK7g+SLRjBs7ip3Eu9Olb+NS7aSp5Oi1ENfPuAXS4q8nbtO6",
-	"40KbpWNJz48r4HdDQn5e0Qy3DSta65X7/FlhNnXgu/UG2kC319hKSyI+N6Op0jduyd9x81yRZB9B9txU",
-	"6mtxbSN4naVlMFv16qL+dJlyEvE201a/kGJJJq3AkfKCX0hlbJEZ8F2ufqIDXNhphW3AabCeVKQVUhpu",
-	"dK0UIRaBEXsnMmK7D8goOsBPvCGbJIV1MdBQR5vYWrPC4qCwXbpug+hzS8Eua5p4O2lAMZykIGSL9kI3",
-	"Nuy1A+1eVCS+3bLqoM9q1TZpfnHbPgenBFzL9minvcHgpz/1GouKasvaVG/v1n7eWiwn1uHW4yEmruO6",
-	"R8FFo7jldnSdcsF8AUNINVjgliMltmuVTqep8UAp6IgN6Dz7rXYX7m60t5rnJprK0NWwiaNlWjGH0cZc",
-	"Ol3JEoFo3YfRgVpJUM+C4qCpUkIPW8Sz6rPjyuELzWkzwtAYkQooPQr+1hTNI2lJvRW2/vVWsuXdprDb",
-	"5G3e1eum6vNLqvXUVxq9Oq7qj56ehqbC4N0tuakTfs02eAcGv5pxpVt9YNAU+aiy+y3741caKPzIWQ0K",
-	"MsvOuDGxF2Hk2VVXVyy13OQn7kztv5nK/S515jeE4t5MMzdVJN5eV7esbLultswJ9x01CR9P+o7F3BZJ",
-	"tb7v10iubRTvkQuhazMt0Rs2xvgPhBUsQN5EzIRCOpmX9YLb5m8cOSRXnCg+b/uI7dEdQzqf/q1BETp4",
-	"vT2OTY0b8MQ36c/7LR4RLvDnvUJ51luOPHNOriTUE39TmxpV2oBcr+b8tCAUJ9EWpL/ijq/KtG2wJcMT",
-	"qFxGFH8EjdwoX1eftryqmU86AezGI4jLR3oi12Kjr1EcVPtRChuvm0S2Ykm6h0XW1mpZvvM7x9142EDC",
-	"9nbAjypvNS0ehWjU5ZLN47sqMLI93G9526ydwAjydYMprA5SJ6VAY7lq5qQHbkyro6Ca27ibwueVuLYt",
-	"ih5SvgmKNnAoNrqQbxi37FzZCRMSQMb8LFaKdQCKMBQ5AP6X8LdzBOBauKKBq6+dpbvpr7eiQ2tRQ40V",
-	"bx6strX3DhgtHqJw/zhvD9709TCxswdLc9QpSOerMaJLND0kD1F8xhCwjU0VRhlxySa8HFdhmpaX3g7s",
-	"Aijq7h8puJKOxdUoHD4zGis9MvspuKPumj/sk1EGLTdk+xpKahm7DYFhFDARJg+7UY9EQJCL0EJa9+Bs",
-	"HeRWstXarY5ChJv+R65q9GL5zlfsXj4RV6eh+idKn+2j2OCVYiuj0jgD7RaCVZOeyDAXXQlXImmd8SUZ",
-	"s3jeHn72O8FLO9mQJlSMpZ899YY2Yr7oODXU7ou/2fJdOKXCzV3ummrb3E/PugVNNnc+YRhEKBU7kdLO",
-	"gTfEQUZrARqW+Zfq8xF83FG9sSaGcn14fjdYgKVK18bnL9W5LuZQiwwCvBYbVLep6idENd5gqlsaeU01",
-	"0lyYRterOYmmPIojdCsUutO6JStWoi1gxcWuI+KJF1cS7/aQOEqVeK9R7XZqwxH784NOftjfN1MADJLP",
-	"779r9cx+Kv+OoCi6QXc22PUIKKfT7RezW9+3oMg8PfkWxn5y8i1EblPtAGr+d/McoEwo7DKyMTkRCjNZ",
-	"EKflCpHhvsjvqmsR4cgZoi2n9MS5kb/NRu53UgHDuDtQz+U26ueDmuQeQtnhnug76IwaRn+3Hp+GIu/g",
-	"1qA5att77jYPoNKiNIKg83uBAUKjQsnlG7Nd06px4wXiZeL+Ltl6UxAAuf8+cnONT2KRXcIhdP8930pq",
-	"H2K7lWTvf9IsbiVbYXJbu+CsHhsCMa6Td2eKePibNUDvuWo3nYDK+wOhogiAIL6eKHsE6QggyMyGU4P7",
-	"CgXkjmLzEofp5sCtMR6mVrIXqNlLLWCb3VraiKhJd5HtBoM+YTPRBHnzOyuImTwCdPWmFNZNw1APAVir",
-	"Yau+fOe3dHeJqprSMyzZxI69QahqrGmlGvP9aF9QCkvYkLeqBhoCGyrnxNjgRIE86TnhQlWoEwlLS3Xl",
-	"6ClcwmkItGmxXVLpdq5kdXBfdwteF6xJdXWrVprSO8b8uThArwHy42tboGfcCtoOt7qzOwUdeWgzbgKi",
-	"w1ElYGiRieJS5Lc7PLc653mkVV1XKmhfOxkNmuqfiJp3pOFtOuvqnFU1ti5kFdmw2Vl7NYllb6/MLLnG",
-	"cH0DNbYJ4C3yyi2M8MZ3uN4nsIDG6q3o+iIQCPcBL0vvqu/f3wZTs2kGpV61zvJtwqIfeYQ2j1snbXDb",
-	"cSHSCYVNNZ2VDaYemVmWZrqwRcbLEWrvU+Bj/X7YXgeM0lgiX0u2PiYe4rX39r48uL+zz3wZn1Rp7OA0",
-	"bDNe/nqU3dZ9oza423THz0XCFrfuxSrQLvAftROxIB9RP7nIhF9NFjDj/RUYYE1cvtWjcpwho0LQTRof",
-	"zOptEYlK1cLAPz35Hftmn4XO0f5L2P3+/Z/+9C//sHt268bermysbccnbG/wXg2a4mLK29m1sDP+5R/w",
-	"XAVlDB6pumdzivWM0NEO2IeO4ZNRqe7c+hkU+grLtHsT/ss/OJdyCfKnc+Tebrpi2whWRearXft7V5Mi",
-	"m1CN7oxQzM0ZIA8vcw75Fi3j0nlMVtGN5U2+FgXpeTCXb8RieECkG1HnmgDrG4P/OWMs6Txjw+IqtmMD",
-	"SDwq0B7BHPP/XTzXbg5tjfqPfJcrskFQa1zrku2z4QEPLVwUl0KuCC5t4PYsV+iMu5gLMvVeHWlCGaaa",
-	"cQrTkLol1OiUOTFAmlci+Get4j6gU+PhGfELMZqoeVuU1NfhcnXnLFfOqRLGdVu4uM1CJB102NIAvKMS",
-	"9QwAgcaqruKsKVi7OqPcxuEiKjVSs04+w6H0C/f9Cli2yD0jXpqbgiF8LxoBB+HsJjFxWT2X7dukEXRA",
-	"hGY11buF5zVt9+4khhq6EXHTV7u6r7fUuNyCUJPM+Z70tKbDuMEuXKe13a7tWOvyfbICfnfQf/ig30I4",
-	"bzbfdiKQlbHOhWSjKkrPJV3vXDI1tztqvIMRWktYakNJSYh6afCfc4jmMVAaUltyF0IkuF5FircbaGkR",
-	"/uH7E1hgsCHZqvNdih0f/HiNBeBQr3QDZRuxkXfgtvTlF18e3JiY6FbUuruyYA0ZX7UPQJkOwjrND2EX",
-	"X3FMnkx+reCncC7iqGKvsgzpKfAcb7fbc3+mK8BRhPZ7oI3cB8rRSs/8ujVSD1I4fMoW7DfsfMB+zc73",
-	"fvrT9RFLa3Hy7r17FcBg0qGsl4N/93/60/VP/42Qzr48+Pzznf3GkaGatxL3h2tiK9kK9XY0eOOYnvna",
-	"ol8vfI347JuqWsjvWgW5LDNf3BhkvFyK66SRvHdclFZok4Ts1sFfIFI8EBxWWRjrwHXZeK5xq8KHNBXr",
-	"QaCWsN82AoV6gYkF24b33UQx7Vw4KmvpERpPwyH0qdgXFBqLaMLpv00bFtOuqdLrJtN/izbTvf0v2o2m",
-	"72vp+Ms0H6wzGsQzUtn3b2f8uZuAyHVIjWSTqAM1waXcFYgJb8fuvtj0/a08sqno5u7XhLJ+m51yiiXb",
-	"hN4V3uFtAXijhh4cizYmojm4BsvvR3BDwN5Sxzc+ieuUqvUIOOJ1kAWre3IvIZbj5e2IaojZcyK+13rC",
-	"kyvl4XJq8MjAxk3Pi4u5mpsRlE9vi/8Sm0067OwV8FApwiyOsG8ApYd4jNVPcW01n1EyffhNX5eKwKr9",
-	"r7fwSooLDCDCvxWODVinqub6sIey5xAhYxSA1ikDZUZNr3yIio6hjGCQtxOWzqWzrY28mRKcAc8QQMyb",
-	"vdzeqy4Xl3FIKmL30Eg5lKlUduQ1pbAMKbo4spSoLW1Iz4dvGuuy9FkR2WXXsqn+u6jMqAp7aVWUVyZb",
-	"0Aupc8sLGcA80nEhylLodqiOqeBytKFTlzf8tClu4BvQ8wW/ywjxgVOsWn4znFUDvHnZKWY20+q6mNZE",
-	"L/y21Wjt81r64xRFu8MRF8ZiVXcR51fkLUF+7VjUlxjB5/EhwqQ21ySiAss7Yj1NdWzDZjT1L8lUu95A",
-	"+1KLGadFOLNidousaGXxdq5Cuq8Z10ICz5oLNp8xq9D9usqylVDWa/oBZG76rIohD4ny2E//BI5bmeUS",
-	"Upm0hXa7dkfTu3SL8pVaVbqKN6wAh3q3faIqb9mjxoaIJm1psFHnG4227xvKu74c8PrkhD08ePAFc/nc",
-	"GZleTL8lS1m7ZZOSMKFpSSsPMeA4CxRFSOabCeW8R5d1+yuQxZ4ojEHjZeHS37vd2JbM3qWD6cha4lCf",
-	"QOHW605W4fwrc9SzGScUw5aIJfzAsePrktynf7vjxLWdp8CnWMVgiV2unCpBIWcPBoOV2VDmpr2d3716",
-	"9ZLRBwhsVgvpeVBDcT8YtAIe2sK2AXqfTZS2zFAUcaAkbv9ALa1dpQfLvqCvT596GXrhHUfiyvydP9fy",
-	"EHmdN0LMhD503xy6HZL2t5pi9XqxAN/6MUahlmtsj7WNc/hDxwPyyie6KSw714K/aQfZwQgaodvLN7b8",
-	"IePsr89efM1eUiFWSEwSCPFA+SJh6W5ZSGF2h/PB4H4m8R/hfmVAy92jdCjhbJ6cfYvcf0pfFO7toSvO",
-	"p8J9jieZw63Bp8IKTYzkTX6bNK61M1vLlncL16M4v1bI0Ye7nrJ6IbbRkSMfUlTZTWxlBxT6ssjAodpp",
-	"Nlt8/EjoKDtc8fPShjEhjXMMWX6LsoUZgeZ9rsUtCoOn06gb6GazcFsOv1Nf0wYr9F0sFiUVWIuLbHM7",
-	"1we3kQlI5CAs7SDkWpUFnpNHeIzoGsHTWIHZa7Ybwq8WlNRNtoTHvI9j5p07W7YdDAKxFWbT8F/QcreI",
-	"zVrwfOdKF1akdOLxAdhsUnY1KUoSWHNuOYSQwrxxmv7zBSvkUPoYFdbDSuBwGQh0ezC47yAlT4XVi51j",
-	"EE6aBp+qcSccYMMbaKxhMr5z5f3vF1hFFSprVl26PPcSnGG9ibJ+XGablfxixzGzGJOQk6B9oZhV3qkO",
-	"M//xW2D0uni6aiFrKs/PD8LoW1BN45nrOlGhofUxbGQIWbHnMIMg6Pza9hCAjKAlnZfxpiEVU818dAT7",
-	"C+oiVYRCV2yLGbZCCimgzhTfWTl3EdqBRz+rvH+PWOrzBqdD6c93BdDiUVUSV0PC5nJcWHKFU5qZ+Uxo",
-	"I3LneMeHslOzfT8MHwwcUhAW2aS+xaO5wT3uBw/2JtfzzsuILb6sVegensb1umffhepxBRt7bjPiUcjR",
-	"3KwxHNIRweMB6ynVVbv5r+QXIyMyJfMVBtsx17Qh2LmYFC6PykwXwFiiH4/33+XGkntO3Y9tLt9IdbUC",
-	"MuqGZLo+Sno57Lmw7EJYUpXiSHtziZFKMOMJUIsqiRyq7igpWKCUCYGN8u0V4gGuTYsJzQW4AMHZ2fE0",
-	"eAcJ5VyX7uLcq7HxLvyua1y+bzvxS9x+/Ek3+a33o92QGSPPSe7kF1hOac0hJfTuzSUqY+AEFtHpdYmx",
-	"trtl/B7K9pTfCUMsUm1F7rmKSoiqJf9O6tm/4xCmoazKwEcNL1eT1LiVWkp5ePH0jDZqnx1HGxXr9eGD",
-	"Xg1fT0DvAPUaoSmvNsse69OSs/fPSl4lXb4j8xe5m45WQvrQ2iFWxzi4XHYLVr45d/lSqaCGbcGYgsbr",
-	"lqoNiOdKNzs1i6/0f/7PW8nWP/+p1eFlNeqRP5KbBic43wfviuusX2rWCc6lnvS8I9OzJIg0a+2UEL0t",
-	"WHtedv64isnq8rXLXrY061Zcty/HynW6HnRs83ow6mbEvB5sVV9Xe7R5rtpOUZi0sO5+XtzQ3NCXl6TN",
-	"NTvaDDcYQmO7+zJ0TZQU1WPR9Jy3kTfJORMHiXyZ0pq6sr1J+sQ6cs3O8rulJTmNFflNdMDKAuTjYN8r",
-	"f0eYos3cILCT8/J2ufTXuDVsAmmV8VYWMUq/jynOyEOjz/Naqn2ETwy/YyY8RamUngd8rnY7X4dQsZuD",
-	"hjZ0nFiKLseR5k5/KEbZBHQc3Xn8sIonoaLoIUpgJ75K0BHC1IEt2njZrGuIdyTRrcDHh3dO9nEKFAQV",
-	"cCNMW/Cmb8DtIokp9LR7/zzBcusSlrWQ9vOD+KQ/HAy+2Hv4cP/BwRcHg4cP926ywW4IWIh7d7TC+G3E",
-	"2/UsPCqoBESpFhImERMEgIqEGC9x2QxRfe/hdbtJoOMODNzF0dNRbi7Z0m6LQdPC+sTTFGEjrvW5qZ3b",
-	"FTfHvLRPhMg/As44LsSmnA1R3g8CM77er7LVfxIDvfDIqmrf3ZxMwo38tsjkTR5vw6VyCsrYM/LzGyw4",
-	"yRbq8RvFYuPVipFiY750+1h8UqcNhV3nJ52LzCVgmgWIyUw0tVPwaVtEbYcAM1dY3zMUa9YeULbB/e17",
-	"3C2R1SP/9RrVyde1/AT1eK4bECAbyxX6FpGcG4AZG92MrminaQygy53vZqjwOBSm36euinfVg9u4297F",
-	"5L8vul+ENWiVT+nfiA3xOD0hl2x/9Vq1rsq8FN8WqqxyZmxAINwVskKh78LoCnmpykuvTipas4x1ueyX",
-	"pVMcQ0teytKIQIQh0TJzCagTBls7vKIKSLXTrh318uYN3tYhsfYG2GNBnsNBhHJJNKntyyU3xq/Tcwn3",
-	"U5Xv9C5QwzcKuJ0pY0XOVmRlu5WuqkvaV58FedNMrxvmNTmdS8pV3bJJfYMr3Mkt3ENQptZfP10yDnD9",
-	"OyKymbnsnBUcsh1NuQU3hK2k+n1y9i2Sx9vio3f3uKs8SDctswGiuloZEvIe193mcROn8yhgosVeSL6Y",
-	"PlJvBclciugzYWPAuuZNjAAymHd3E66FHnYals8deWO86WaA6zVw9LCC4by0Rt3G3a/WJ6nS96znhefS",
-	"S/AfMzPSsloN37GZ0BXsWvL+hKbrYW5bte4T2Ckl/x0gtH3gnAWbxsasB2xaSgawYvZuG299i+v5YxLs",
-	"mP6uKxVC996HuIZI8qYudonSwWR3CJaDmt2noe4u1PoEHdccq7OabN8z4aVLPjnluRhKNBRj4Mfu5d6u",
-	"/2QnlN/us8fgCRdgGnmo+56p7JRoBA8QoSwNbUGADOyQ9NAps3xpikJpPHOJiGfouu4SEaMmrJCM0Klm",
-	"hV4wbocyjfZjSjbaUMy5ZUAJ57XuQt7JSIp9xNiaKrvLXJbCmGXYj8JWKB/1UJgNNnMEJN/YIKjpejsX",
-	"7r3Tla4JzAfCLaTVi5hw4+gxErAzCffXacs+frBZZGW4atdcrNWAVpKkEPL3gW/ETYML43CoVulvA0Xx",
-	"kujlVKAdwwUrzu7u7Dj5yoQve6s41i5Q3vkKRX9kL9sks/fNDF8bbGE0urXT+Z7o0R8WBzLXi5F3WmnJ",
-	"yqMXQKut0JFni/UOI5i8BtxedlwSAwQQu226nU7RLOR/c+dBMlRtMICvPWrwzS2ist4fx7pN6euh3cPt",
-	"e68Ko4XrFN3MnYk4+DmhXgrepqFHaVu+D3dToaRN4OyNxoKKKQZWvk34WbDdkDdVS3AGPge7vEH3JB8T",
-	"VkiW1oriGqbb6E1PAJVRRFkar3Z6RClLlGZSFHZCqro72lbLfeq2r94HMnWJxbuFDQE5ucLj3pt2nwJi",
-	"2QLqO10v6DqpefZGWGCRFh7Rpe7Zaljv6cm3uycn37LgwO0YsIeDP//9f9rbG7BfJeBntus52yoMYvuI",
-	"9iYHCHD0kTWJ5/GoN8wU3tiBjpoBVQbZxoLMnuCbWmGCkBr7qEKmxzdSDaWaCdCm1hyC0Vu3R1CLsIil",
-	"sCLdRm+5UmFTSoqk1pJVCvI3Qpexq0O5N3BtUUQID2XhG64dBwnAiZmaTpVkM6S9Gal0H788ZvuDQf/L",
-	"HVSo0SE128TwcozrySYsiuwGMu3oACwURHv5uU3b3O38uFoUTaraG+yqQMN8WaorRB+ZSxiGyP0uoBnA",
-	"/DfAKXv/i1YFdLXjOjNOjeQMNRZzf0P0jjDiWk/azliNXbtdgpU2vPrK1kGZjq8+mB57s7yY6xEgjlvj",
-	"vuu+8Bf8UqBXPbriEgQARmXfGrbhNsk6Y+eabhcvcdStd66HqGrEwbMM0YW0mvbXc76vlkEy3ivdYUem",
-	"eQV+xSv0c/dB7Qy/Qt7g5YuzVyi1Y7tm94cif7dbfWnSJCA9eOSHXrXumZqXlOj0XDhMawRlW8aFAByL",
-	"iWBCXhSYR24cIbySa9sRSxuh+SHsYXFLBIk287kjjkWO/v6kbUD4jLEQngsq7thRpjUp0Vqy55I73R3o",
-	"xZ2jVtyUFiSOX/kQDlt0YG4uF8cW3J30eOe+XZ3Ue57xOxWZIiPGMsrHbVCpY1fCG4yQtA7Oe09pRsFX",
-	"sMg+aAZr6W6e9FxzvcHXJ6+fYzitV0q6C+yeaZBjirIg0Oi09grdQWvT4zJrBNQb5MIKebPj0u38zura",
-	"q1ij0A2oZBMIlOaJj0FR6k52jZPZsvqdQWJjNukvUeu27lC2Ir9tpGij1s3t7CSbmhSaGVE+GMzdWaZm",
-	"ohYqOpfmsAqyxak5hA0eTHGHVUL6fFrIjgZ/bOh0Lo0PwKUH1MAp1Y+P0BpmQn56fHZMDUF/6yRzY28T",
-	"zy/MSo55fYjgkSnEVd0St095xm4d0rMmHWKcmavN4bjs7q0TqlqLlNA8NFUq/Dse2Yq70XvAL8/EmqyM",
-	"N8zSpjkb266D5fRgIVdirf7NJpdUBGscvd11WIsjdqXwhRPLj9ig7lWxPAtSNaGrb+Sqna5kw+65Uht2",
-	"76YlXMlXBn6yPUY6hEV7JhJZo+83yAa35J3up6VaPz+74bgkFU1opapVko1WseVf/sHPLGUn6Z3ub7vw",
-	"UPbsxSP2myoVCvI4z158w35TJSsBDEIIahqZPD3Eas4eVY6+Pt+yZS6RIEMUjB7i/lnwyxxKn4i5AtMY",
-	"I/BFSpgaLm0wVm92//yP/4USHfnKXW7eoaSvl5E2Et8p+CcAJbNi6nJbUqpGAbFgQ2lVMzOID86mkiLf",
-	"RiAAel2NOSqQDGU1CzxOTg68m+vBkctlQgKv104esmouI0wAPZcYZ9tMsww8MiaGxkJRHJcoYV6X5q8e",
-	"3g/tw95xDVKW1vh7unP9QLterWG3HVP91YOvoKWzvPbsGTZJqbrqb05d02cULXQWSbd3BXx7i/RcIYPd",
-	"RzIdVow/tbzMua/X6Net6B/Bgrg0qTd4BEcf/3/ExJUEDZUC2nNVGLJ6ha31UXEa72qDPXceMhv7bG3i",
-	"Ha2R0V7tH73+tOerXhDu6WaB+rfRIYvrGUds3LnMhLa8kHbRsTlyDzIbNee52y5eNn75/gbKrKVzpWoP",
-	"E59VaJ6b4GLXEEBb2ELvMrXRyEMh4ChWKQgxLLu5FPVtOO+hrnx7F/+p+BMoQjyoCFgZ0fi7pkybo8q+",
-	"3agS8Eg7bpC7h1lwcWZOAFnSQFG9K2aStkk0xNoOrm+W7iqhtr1aA5YaCy1kJoI3IvTAquzNyKhK8xWl",
-	"xqZd3hGzy9V56lvZSsKzM2gk+v2M6m3p822yHsWulRu5zvlGb86AFJroMu/vnX/6DlLGn/p72LlF+hMP",
-	"Vnj/d+W1aZ2npPe2vGf68ZWwCXezdFfckbvHqruhxXhYEZ97hvlyLCrHXruMJY3u3gJa6me7d+5gj+Bk",
-	"VafdZaJANN+wMwrDeksUAfM+bfej2y6K0N1vidC9s9svdkD4UHdh990eX1A3zkDtwrpp19bQtnmCACqC",
-	"58DyvcYb9c0t9qq/Ajua5+HrD0RYVmTtbcwDGeKPKvxWB0jbbOXOnMrWXvDRSW+7BF453KBGBKkWgllx",
-	"TX0nWOwjh/xltSrBZKd5ZoUOiZstP09YWUhnFIfFzrjWBb8QTAs717KRYyi44qxIMvSH4fB6MNiB/34J",
-	"//kK/nMC/3kMD/eeDIfXXzxZkSXpFQgXt4x2uoUE0N2ouxJ5y4ANYgNeAD5vY6xRrFoRWycyLWyfnU3U",
-	"lWSoHwOZ8IgVlmVcOpcMRCFF96OORk5qMfH4XW4gNfavdedBsdvxHH4S7+AygaRZmN+aW/JbmxtRiadH",
-	"zOBcOa8P8shxigQ+zwvLrOZF2X+fBazuhoN1Bre2gI12ADXXkdY510LepartnBsBZ/7GBJDQ7lf+41tG",
-	"PNdDupYF2JCxvkOwuktvH5s0WjIGWMUAyB1WfFrIkHqfeA0LYwK458hWwPyEJD72H/g1uAM43Qrbm0Wr",
-	"BhDzThP8Mnztodq7b0eqAMq0EhU9l5mnpQ3Couei0ppdFTJXVwzdW6eEUMsl20sGg4GfEUrlXS7we1Xm",
-	"wlj3AUaHwRy3u4JeepCGTaLmYmyHG+M5anFEQTCuFiHMarTzw8ardTCessiws872Xz8j74FD8V6YElOY",
-	"7Nu5BK0wu5mWTXPmfLK9KjUXlwUx8z3J/vyP/5HtrQJIDyfsttn0RSlWhLT4rE6+hXCEBTpeKyM63Ig4",
-	"fzhomJAYzCJue+X6v4wPvDMfQWMlXBarXU7DFmXc0SVyvzYxfoKvBNZGA8/WMAQlW3pk3s65FmQ06moa",
-	"qnf8zLVSf/o0arP+JrIHLb06C72pv3imyHgUEa2PEFK8KQ6fAIrfTjQ9SLV1aTfcJgslCCOrMN45ehwQ",
-	"XTx8eExNpwXFMuDHZnuVI/0ovq2XP7hdHPlqiSjsyXvGS0Sr8/1JATepAzcfFzaBox426m0dwjfPAFm/",
-	"Y9pzpBgPPBS+9Qg/0Zp1jodtoOesj0aIPAdrjoJeaRtw86uI/GoX1vdAbaxt9Ai3cXw45vMi36rLaIOd",
-	"h3xnfLzz5Psfvny3E/882OTn3n57xtjXrX6exww9PdHqDrKuT74zvdh9Bg6cc/fv72ez6ffNzLb399fJ",
-	"nP+/nf//9z/sJfdX9OdbrgsuMxGyLW+SYAQzT+ztmj/su4zkl642Np7LLPaECTbMs0eHDMR4ls7UldCQ",
-	"GNL0rrfB43/w05+m/Lp3nbDr0bSQ23/I9kg3iD+xGjPlZVlznSBv+6GsmQKPXBMuXbPJU9ZzxEWNSdG2",
-	"u9cf9AfbcfPs1yyDlNCtYUJdkYWzvY4frnDoahwPDxU52MKq2zb1txVFaGDCInSYiyKTiyhAnyLEHGly",
-	"Jt+VkQzxfTvjBo7iuO7Ite4mdb17SQXdrydYnvoeHKQ+xn23OjLoNh4W7xuc0+XGXeMpmBdjb0Wata3/",
-	"rx6h89Pgpz/1xmouc+RCnW/T9q7745bXEFZ4U5pcVLucc8ge0S0tbkUnbtmtzRGFb7hEw+7sYG0upoVt",
-	"Xwm4Zn/81aMfGQcOliJG4xwMzjHDAyt1NMqu8/y82bfzxrm8sxCRCj1viWN0+V5w6qrQV0ylYFx0WSd9",
-	"XcRFOIp5s4uI38TLjqr1cxWvbOTd6g5mUoH81fmXjpbieI99PCgr56AecLNbBccpXBruSx/Q0oh8ORcI",
-	"Ygy3Kvm5tKj0I7n5skHuux6+pUWvVbQ8nBvUEkvnevnqLGRhC4iNgQhuiuXLlLSFnBfyImW9E3gaW+zi",
-	"HsU3pquIdqIr3/3qDFU+DdXUNkxUZWNct7De32YjxcPurqmpr+0NEkK9iQ2W9k6guVYEgAU1DwQvTwU3",
-	"883AKNfHGn/tHJAbqacpGyQbBMe/KhoMJIfbYpGsSNowWMO03vrW/KgOg13uAO8zFK162776Dl2hT7jM",
-	"i9ynANhgTwHqlVgRi4vjEN7JOpsoZVYhB5DGbm01Pj/j3IgVOucpv3Z+0+TfPTITrlcoPEquL4SxDD+p",
-	"vBwt5IfHwi6rJ3giEPrBXOaoBCoMy/xsxeyfi/eXykbixW00s8qK9jRivGoYmzJvitmM5By6vDGL2BET",
-	"05ldxI6tLefUzKcjfg6evstt/ff/+uOvTh//6GcF+NydjJcZpIUSeaAQZon5bevdLWchxAjcdEi+Cx82",
-	"D0lVRW24K/dJ2IVJ2NZuNVafm9ZgmWeCG7tD2lnjtpPpgz7h+g+D/oOU/fnv/zf4tfjDfupe19yfgYnm",
-	"Q4lqBGJAmkGxqFt0eofecTkVRc6ZsIyX/YT9dX8oTyZaTblVF7rPvmJffHHAevuDwf422997sN33qg3f",
-	"N2hwbxfUBT/9N3KwhEyGSxqPSJ1xDSoM2uaMZ1oZQ2fFMKtYqS56+Gsozx5tB3QMeFwbxnbiMg3AeKn8",
-	"PcPAhHv26Mil8eNDWW0rNfbEBG1SuPEINyZoTdyJ5TFIH0AQpmE3jBSuk+k3Aznc7Ju+b8RRLIpsiTa3",
-	"x5wJOhszn0Lf+Dm6OArm3TEZJSJ3B2koV54kxqcKTZXKYAwihTtLVSNAU6UFhLVwySa8HLcRrT57jNNB",
-	"YiiFPxmQzaqzaTDtqpuOUfUYcCBKo5Z86sfFNfp6mypspx7CIhUqKN3mpr/c7338dxGeL9xvem7wX5jq",
-	"jmxjOHJfU5Ph91N5efZW279tPFv6vd9S6N81ni39XipUe4ABNt/H9ODFLLCMG0Wi+r1azTNzOzVxm9wL",
-	"keOiLNsgZUiaMxC9c6NDQxWP9i7Zqp+ENstg03BWL5DUml5LLd3s3AbZat0UgWcY5e5vJOKGjbsy/fYd",
-	"TljDJUtgGFwIvWslUlKI3FBOJEeOrQLl5AqS1+Myd95pdCZ9KamsKwmQABciB90vfky9qAemsTQa9SGj",
-	"uquk5fjxPcPOHhHqa589crvu/iHjQJmdB/6VqqoEcqukYLm40AL6DGWFyAE0Fhbg4QP2K0rWzcyMSwND",
-	"IPccpJqwWl8MHARMjXuPmPb91lykjY2GNuNsrgu7OIOF81nWuRb6eG4nLfIwPFa6+CPeSIfsK/yWBJIM",
-	"3YrwT5H2GToBmUOWVhHxYLmIQ+JB6Z/WguLhC4yKT4+YEYLuecIgLhQEmafXO/5k7ZAzkAsRJLYXOFzs",
-	"UsXETaydbb17h2bCsVoeErYPrjBCE/qUqeXGm0u8kKocoDVpP1xJCVzvZih57fUSGnhCKneCwK1ynlZH",
-	"lbKvc5kJ4GjKIlsQDK8RMEueq0+IycGqEjYrlTWJw0+KcY0M7i2XpNck7Jtjny8HquSy5uc1lEP52WeP",
-	"o6ykHm6IW+Iu+p99xo5D/xhw9i75YT1/q8/WLXKWwbLrgntIEq5D5KhhueZXks7HbH5eFmYicnYxL3KO",
-	"nntY15rcqw5rJU6/Ck/cRQyZWOGcDuVMi0zkAuv0WiwpRO7nAtmppTStDu7YqbkI/W8oaUEdLrKb5Yq3",
-	"1GImOGI2FwZBGr2KIsXZ/au/YidKXgqJz4Zyh0HyBkeIXTCeFsxI/kaMMmz1VeGfnj45Yffv33/IeinJ",
-	"B4csaBZSIGGM8fIKF0wX1grMgfb61QnxX+KaZ7ZcMFNcB0xTXrK8uMBdy1gv3R/sf74zuL8z2H81+PJw",
-	"MDgcDPqkC/j36fYhe6mMvdDi7Jtn/pRMi0wrl146YUZBNUS58YOc0sEUDuQWujMG+Yc7ZzODklLoGUcy",
-	"V5RW6D5MTaUEwPPnq5wgBe3BsfR+aAn5MwIYoBYM9PqM2CLTZ6fqCovDXp/NhKSU9wGqAgzztCXglFFO",
-	"ODwzLKTxolpJ0iKFvSOohqVFnu4CqmBKoX611P3GqplBUG3G9v/w4D7bYXswS26KsrIQ0ibsr/klP0Nq",
-	"xApJMeWJmx47EVM/PTglAFMN2wQJSpELfgjWeoL65LjsON0p3hVpgI2kCMQIXQ+6BN9Vmmn/sVFweoBR",
-	"iNVZrtIKGdxXLd2SA0Ypd8cpqegKQmrj75BJMoFFFiKnUttsgqtSdYnbFIf6Nc437fxxIWFkTx8/frzz",
-	"xYMDRlKx6dPpcc69Gdd6wb7mXyMIk8QyiyM8Fc7RBJcoV4J0DuK6MNhrMoHiy5rN05O2BBgMVpfqCQjS",
-	"Oz9qpew29h7E9NRLaZwZ2MFSlDgip4RkdPcaF1DrM6gTETCsl7ZxeIcMObwU7nzGTkMYsKsKJsmhUHJg",
-	"9soSNxpKOyRvwfxl3GYT9KpZUGt+l+PVoqG3ufEbuTAsVxldgWHO6N48F0du9xpmJmpOFRkLDsbFhVRa",
-	"+MHYiViwXGFZGGXigEpBmtPMgf0ZxvPclaClR0KoxtEtbBJ/f5rE0XeTeAkab0cPLAoiH2NFRTsO2R6z",
-	"in1+wI7PTp4+ZaWwVmiTONKHpdM+sB0j+M8h/GcnTWhInNKDIwXlrijsLyzLesTssrQiVel2n72WBQJ1",
-	"Qc0upABqi6IKuA6If/5eAC29GcpjVhbGut3IJbvQ6irsNEx1z3rpbx/HCIXQYf/E3W7pNuLw47rmQHch",
-	"TSHMIayQZIQ9vjiEyda0Kw8dm5uyHnzLTPFHcUTMF3YIjTw16cCBDCPzuY3HDCbSJ0nsuehSTF+JzQPr",
-	"FqU5TEOuG2/wxYTpUBF8vZ1EagMEmMSLwXhndfyYsi/SKOhEEK4FWh6SenPVYn0tru0JPdymTvt8iyne",
-	"g/47lyASVvRvhJj5mQr7wY31N7VWriZFiTuwqpShO/VcABouziXtJsnQwzqNFnKbjiAWj2o9RLUh6HBw",
-	"/h3CL+SddKS0l9bW3rEBuIPdkUYDs4GJVmymypJ4LmgDT9yxf10Ypmb8LXjlVV6X6Ut+IfyMHeHusRO3",
-	"vYpMsLxAmkkU3MwFggXjXyR/oWLVLyCCBB8MBrjvcdPTtg6m8EL77BI97nClUIZr4C7DbvZW8ybWMvK2",
-	"FWObRAy22abs/FcTVYoknCw8H9ilb+ZwOYfBQ2WV+BFTwqyEUxydZFrXg8EArmhEgMbj00vfQpWHJCHB",
-	"7e0EpKDNI5oZKAEIWEJaNxqibijnDCXx5rDaKdNqboWTiTcQyo4dNAGGLwkUQ4fSQ7JQO4fQkR/pB/sR",
-	"l/BHdqG5tIb9OJQ/7uzshP/Dh7F8x36MqTb7EZOdkQwFAyHC74g1sTn0Em7XhD6O1zLS+HkA7W3mGo3F",
-	"SPYje/b0+RlxZtptgx+pfs8jOiEpEo4S15NqS9mAiIonK4nzh0qYiUy45utCK/sRRCtj+Xjc2mxzS5qj",
-	"kO8xuL0eMYcpFBsMHOtW39/UA5KS2Y8M/yiMRSkJho0MJnJx0PzcS0TUC2KVoY6hfFwTrpE6EbWgjUDX",
-	"EFRP8h/pOcW1FRIu7qFskcUPGXc7DJSwQCw/+wwYDiXFZ585FewUFdX5lKw+fiR4ZUEXRA4BwmWRFZaU",
-	"1pqOiXVwwSYwN/C1l0JLYQUmohnKFzMhj18+ZV614QFQpsTcM+6OUDVy4N0qrcch+/33gM/r67nfH5C/",
-	"jnGHgiYKBQk4HS+g0D7OLhR5+gikPCky60xxBti2Y+/JnLApL0GCg/3luT/cBZcK0M9p9pBK7h0R81r4",
-	"p45egZbBzRR1CL++32fp7kTw0k7+CEzBLuzDBf05FVYXmXGAn7tqJiSfFf0Fn5bpUKIwLJVrpJf6icOJ",
-	"2PaE6TEq5z0VQlU9LqRE0fThwYMv2Eyr81JMgYudkbavUHLXPf015DhME5oUPpTpS3oON+wThfDPONQC",
-	"dJ0JS7EFkzrBmBRB47GQuKuQX0QOhpMYcK5yx9bCRQI9+vzhYI/eoRc9bCEPlQUfk2ctXrYhQ5PZ3d+t",
-	"Y6ayXjrcGm7RLT5xFweW3z6i1k/OvmWZKEtoNt0tCynMriP2+I9wvzJIv+AJMXAnqctgCtJizmaThSky",
-	"XlKYaQ91H4xNBM8FTjM+3tv2/sCuoS92PeuTuu5U9zb0h5ouXLPLl5Cvju4oYgETls64nRwWObHBKXXi",
-	"8GkupjNlhcwWO38jFsjkkXHXSUzTwlD+CdK6xlOPFZEGqDDe4KqJw3ZZ2dNdt9We++PBzEJafp2wK43W",
-	"nsXMxQQ4Fi3yUedawNV7RJuHCFdhhhJkoR1X2zmw0FrwN4Zx9HUP+b0cI9Pj0osZsUXHX/pDCWcuIdB/",
-	"Orb0BbAiWiAPUFRzxN6IBUqFB/v7cO8+GAxInwZ0YyiHAQSbjtJwK6CypI7VHBV5euQsxXMj2AV0xKrQ",
-	"Z6HBRtgfyq8VyeyFF/AryR8rghexvBF0fCRGel4g/dsdJ6TuPAVHac7i6VNSoEAbXBZRBESq/QbDGLyG",
-	"C12vSnUxRK8kkHmczxgKdXv9vf6A9XAhCnlBgddYFcvFTCAnqKSj0Atht/GQL0k4xOmjrBJxqihephRM",
-	"dRWkEQQ2V7JST0GxHClonzWlKcaluULlTuDgkUe+A8YQxQuUiTEgxvF921g9LYlXmG2swQO7AdILDoRc",
-	"Eg9O2V9kIQW1EfQ954tqjkhX5BVqgROqcRyRzL2cC2/bK1miEvdIk8N6fgOSzo/223bUdqVScjoSyqni",
-	"eBWUbjzQJB3ySFjwSjXWQ+k0J1x+xoRERi341nqNnJsEMAL0yyITQDShK8cznk3Ezn5/EBDwtcBWSen8",
-	"7OnJ46/PHpOVwRWsArW3quIQxqxLZ3Ewh7u7V1dXfY6v+0pf7LqyZtfViGXAKFPYUtQNERTlYlzOsP4e",
-	"feiu7a3Drfv9Qf8+xatM0GbjL374+0K0BZa4bb0PsaggpdIB0ioTxuA9XhaXos++RonCMwP9kL8VXA/z",
-	"rcOt3wr7O9dUwzVrf4ChES7vMfwZMwF/5+BJiXbfZD6kJshq0xgHdhNm48FgsKqa0C/KAiB5icxLzeC1",
-	"dfj779HRZcr1ArxQQEktMDjBYsqI31cjN1vfQ1HPRq2c5Jca9adibghgQlz73ctIZ9+c3yP6RLDCEj+p",
-	"JKgbpbBXSr/BJfIJOFGLYCxtw6U1ee56duOaQL92ZyUvGqvR9K1emnjXwoeY+mjapmEcKxchZl5XrgT4",
-	"rHn+PSgyo4sT1Nvn8wIEPbTadtj2rrrNtr3v5AYTHXcdRA/f/YT9u+Pnzz7E/L+K1b3rpp4kio40Rsga",
-	"+Q0Xq7fTOS4OWMi51jjAB4P7Q1k54jVXhaVTlRPRTqEraMtJI3IW2irQEouXFRpsQtqtQ2db4dpthdx7",
-	"i5D5xHcSe9JLT4XVix3M+JNus7m0RVl5/ULNBkjoVKGdgPjbiKMcSqlskQl0GCusEeW4Dz3H7WHSSOAm",
-	"TYh7kbACDFYL0k8hMm+hWckvVpz9U1qVD0iOT9FzQRjTtl+xeWYVzeet9yeUun9zqTOa2teSX/KCfCLX",
-	"be2q52u2deD+Vu7szz5Db4bDzz5rOjAsqYKU9hoN5IgJjZ9J8i1BvXVCOK3EodSYILSwOAnXSQOSnS+G",
-	"EiyN0cs+e+L04ZmanhfSOdkdf/3oiKVA0PCMFNK5gJPUb1XqcKvhWeLSAMoGG8ZA22tciH2lZcmC3Rqz",
-	"WYH8QiaLLa8XiiaMBKuIpmwfoscta7EKDGWs604ZN5UVodUEcETx46JShA9lXdtOAeU45lrVoEbvV8pu",
-	"NJtiE0hxhtI1UGmolw4bDPnEp1OvZAFE6YELdQvlaA8XdFgH3eh21GLf93dJe7UVfMfd1RnypNxdlSFg",
-	"u1uVtej7VXVG2dg7VRoleW+e6cdcl4UwljWSXodjg2HuLX2AA1brQJdQj+X2IUXJcuvi+obWrbqDtl96",
-	"I9+qVlAVVGsoAHZAuu3gdbZfczrba3M6a1+g6vTsVvYlxLD6YLcYbjA4wm23GPhWoDpBjZ3uHm+ygy43",
-	"2Vc89yFGWGTv5iKvJXc2G5FToQ533xOlz4s8Fxi9cbD/8OYSr5R6zuXC9c78THdzuI1PKNy3MCBaRzey",
-	"u32/BzfmhkVhC0Fyu2TRqV/lmLjvA9znGGFDSrZxYfvsKYWxBEc4JTMRGa9dfj84VTl5ktOTkRPvXZL9",
-	"wjhjoBa+phXMHk7h8u1zwxHDUi6144c9X6skGpzVX/qRGhzcXOJrZZ9guPBf6Bk89klXYYsW1pA7qfNK",
-	"RSOth/z60KdzFy2inc7o+jPp9dkOaJ8c0shPujLgerFTz2XiodmQHXdWw8g8i+qwyltw3Uk8xiH8Io8j",
-	"du2ZWqljwGkyn47kL+BIRlsP7dOZI/L+BLrDtOoEbnDkgiMmbreZMu918AinwDAO8i31GjOFUKBbuAQb",
-	"qBYhvkvp4gLDm70fjp34q7LKC1QWkszirEDbU+qrGakxGD0t5j1xFYV71KMUoLnQgtmtkJ7x6LNTV3uj",
-	"GyGpE5QIv0BkRGhE76Lt4lF6wpEdrGsoMfIQEQKUFEHNYyFBsDPyJq2J5bcdAQrT46yi6YyE/ZGb/CNW",
-	"y/nu8ZTQRcpJhEN5Iaxh3qc5eOUXNgnWRT/aypUKlWEhcTs3Q2nmM6GNwMFTlmDXNbBOmGY1NY8dN8eH",
-	"oH9zuEK19+QnWiVJr1xuDPOSkM8HbYeSVG48pLSHqfXwf+yFR9p0CkRH6ekITXgh0Yfy3PUfPOUOBg+T",
-	"oUTjb+qgQszIlXbm51NEQesd7O8n5HTgUst7Fq5yTAg3KNR3FMIahpK6D5nJnu8NIJJ0f387cTqLKJoB",
-	"IhQcwAncQ87SiZblkdtV6SH1gXYc+izTJY1PwxaDfQ8z44JfQwZprNDtYzMKzt0jKa7AU8eyUnBDoduu",
-	"jPONdueAl/B4QfVAGLB/M/IWSKpmqoxl+xC1pMaVfpTr6hyjYc5XC6eghANUH4TvQqbm0hrmgqR8Vduu",
-	"F4UDvDcjMDvHw6jF0UQfpjR9FObgVgnMqIlfom3c11XeM2oJ9GMjjMIaCZmbkRQid1li00M3GOhujQzA",
-	"BEBB5hw4XII3f/gmxcUEftN6Sq61unJnABqCsWBpaPAI3RigEuflR31xPUjQvxyx+B0Gi3dvuposyP/2",
-	"QkihOTofp65UZajGSd5uY22IqD/2F8V7Mjd4w36l8sWd8TWhZ4EbqYdbInr0El+193HEnBi5ifxmsP1n",
-	"KluB8PGS20mg5a5wwtLGvY1If/UhJutsSv/KeLpBB57uRMlx6ZAuD/Y69OklX5SK56+Uesb1haByD7pM",
-	"AOSYUNqK/LnIC/5qQVjnB/v7XQo7kzuwgY+lBZPFXyjX+rjpruq8PFCe5J4p9Hs64mbfZnfByYJjbX8m",
-	"LzrJj7fQ8WCcVaksWiSwMXN5kbqRvfz6t6yY8guxTjZ8WSr78uvffkjpEPuw62ahRSl8XkhOmrYuVmcc",
-	"5Sd58Gc/WbBxIkEwYbSLPrg+xu/yD3CkzipH/sAGhnj4KddvIAzfRzcHCOjEY7mMC4zfBUgQmZMsw6v8",
-	"tTMuRcnORamuSF7BYxH8Gjk546Cb1VBSdIavP4RlRyHfULuzM910vM++/QjH21xe/Pr6Vm4knw70L/RA",
-	"n337cQ50FezSTd1TO9TNM/x0CV8AxkRepoA+UUVhRsAGbsAo6pE7C6+kQwoioNNcnXLCRr/kJeOWpdXz",
-	"tJLeULryst52ny15QPfZy2rsFCDbhCrgcuHj+dFffOIi0G2CkAcu6AQqBJM0TIYjCkc1gNqhdMGRILgR",
-	"aUoBWMSk4O7tPbEpBBmTd6u5NUUuaHYcVoTIh5IkQKWJkDFOivg+ixX2FHA8huDTCgDCtYPe5kN5MHi4",
-	"WqqLJuUXJ9dVfdtIsBt8kA5QE6sMxU69NgvBbAn5mLkIb50L3d/6JIN9ksE+uEE9DlbC+AoP9hJdL/Et",
-	"0PGOWXOnuHvnDqwHzxUm+XDkDUOSmzpvZhVLXaiku5B8kpCU/P3J6mecC1rm9Cek7nICKdQkWlObsWOs",
-	"GtX3vh8u/wWRenQ1JfR8UsLxSpUGKuJAlBUEWbDj2oVCOX1KJS+EXh4Zepk9PGQeNwMejBGIfShPMaeg",
-	"ia2XiBgk1RVdnqaNxJ9iPXfhIHD3xJ369jMR9pUaO+qVyD8R60/E+iOYeZsh3x/U0rsEyH3HEj05XcSt",
-	"VB4YLQIAujrbdJVX7bcNbO9foD/FEqj6CqG7NvGfpO+f/9x9244o0eppsUY33VEMT7qI2TVExNXnjD2N",
-	"wDSg2jrUSTQYF7h4zm02oUBh8NSPG9o+ChgVQznl3l8KbawB6Ot8wSYccWnqnXKmcQ9LFhomCDdCuAy8",
-	"Sm8qOKoG0rBIAIqlhjIvSsTD23bgSNMZ1wI5GwepU4u9PwxRO0OJ2WswTYfPV4NV/OrRzXltwEUT8b4N",
-	"CuNDiQlY/vwf/peGwbhCXuzHkzwKeb8h8UeaEIM4lF4V8dM/7Q/Yr7xTAnt9xh6/PGZn3+18efA5e461",
-	"sy8Hg8GjGBiyvo5Hy74B1C0EKNdFjnOUeBe2oazhIOJj70vgXdqOq/BunFqfXodiJzybCpwt4d4ctzpr",
-	"1N00fJKaOmpK8NoYSm5h85L3A8b/Nr03apUr7UxEEf+PsY9XTM/lUcPpw+EwGgf6vOQq4rI6s2MZglyU",
-	"DNanyHGlRp695ZW6UFgqIMxQUqA2WskRz4D8KmjEVily2qlVlgwlfETyhVaEsemdA7DzzisJ1VEwJqu5",
-	"NORH4c5XLWD8oUMSCpkUSbnkwRlIdIgzJkLEGv4xksqO/DtAGvLCTeXYA0c9BuYLU1VVErvGVFU01FDu",
-	"WwjAGRfgQwN4B4cIiB4vtkPTjLdR5AgFbdbOHK7qKDowiGLCyUdnhW7r23oqmF+W/NOWjuQj+y20JRjq",
-	"wMIEx1k1t0BhPslKn2SlD8+znRJzwtvhwCo0sI6sW2CDbrafRPhluz9UP9554cqRxA/kdhCpj/Ckk+cr",
-	"ohrWDZQeqIZbumq9aWQopbraPgwZEkRIphtuTEtGBiTIWJaa08GPcih7UtkulwUxcvCxv23IiEvhrkPp",
-	"9WBehZdQkklufQaWyIqBo7ridNHCBPk8McabepgRsV8sDWxUyBECfiC6nURVn5lnk+aNZ4aSLmNV5kIz",
-	"JUWffddI3kD1g6Mj3Wr8Qowmaq4dcFbEORXG1YP5JWgCaSUSyvhLANDYsT47GBx4LG10WNUCcXMIqaWQ",
-	"7Erp3KyzNT+VTxTlltvsWqvkh62bg0lX+5dtEgm6fJtMFcEXeATrI9RjkmEMMUBXBSFyu3mo4wcPcPJL",
-	"sS7OqVr6T+L/z36VLK8KHFXutuWdyv43XSF3a48/Nix9+eLsFWuq/qJm0oQEo1gZV83DWGkKoGhcLqkj",
-	"CunS9QJHFzMzDGVAzup4Y6bbDrgRZx/wOgPyINpjsje+e7lpteh/rZr9RxvKwVCGSBOyzayWESp6+D6W",
-	"8JiqfiB5oa2jn8zin6SHT9JDF5L/zZwDT7JYQ/vu1D7u4PE6yQQNhr8kFIg4No7YVI8teb7A0KNVhpPn",
-	"rukPSACoiXUmDzf+T4gJd28zLMso4UF9r8Q+Hu6blft3E+tEzGKgghb2H8tcrGfYqXt9zAlDWEUUmwZ/",
-	"48cO434xlFUObdLwEoR9fc/7qklyvI7e9PYHexD4JRCrRVdDxxDNJFKx+hR+lTdIqIQyjQ6l8yyGvlVd",
-	"97Cadvks3jPMnR+iI0PpOyodc8LRv4R8NUAZuj8YoGJYC0Nq85BdDXLKRBYGSiEWIURUOc9NDCQWlPhm",
-	"oq5wCGWJAXSg6CYFQJU3aC4LgO6H8RUSGFwSasFPZY3a9LkH/vkQbAxV/jMxLm5kLTSLZNaMl1650lj5",
-	"o7DCiO1BylKkbnepkF3dPzp2bv2Ufr+oMn+RpNFNtfsDbJt/bWFln1ixX6CHIh6eQI2SyuwXszyUoHTT",
-	"y6zOfbk9fQdMmNNSkpGO4r5j4IF0NQYrUdI2ZDiw2lWaLfznw2jcjpmZiQx05hE5i2hcB71bFLNX9aiC",
-	"/No7+OLgy/ufH3xxA/LX9z8Lba/40U/Kt5//+L+QfjVuf76d7LW5xaXdZQ2vc0d3KqSMipEkG32AUiDL",
-	"PcZ4JAiOQbg5PpEWpZNG3QZmzngLaq46vFATUZMSCTQhNdlmiJpHpPUC3jLgZfqUhR5BJPjlnIuLQkoE",
-	"Dv1KIOOK3yVN8M3CuORRzAjLemj8ddkaEBuPcoxH+aQMdMWlz41AOJ2tQ2DmJ3jkwIYI+N6hSrBMTV0O",
-	"mKF8grMDXav3yAjh0wFjFYFfVzITh75aTPsWUjS66aM1IfDcyNPCuHZRGclpXLCmeiidl1BIBOmtV6Gj",
-	"SEN1P+TOoc/qgP3QdNScz+VG6SHsIbpx4RIADgl6wfiwKXTX6hO3CdZC97zPc3D28Oj95ItBqufgq9H3",
-	"flrJapOp+zJ+mwJczVC2mvZCgfAq7oRP21bB1sSpuVI8LiM6StXHsUVRScqL06rUoDwAj3FxN9bOxnCS",
-	"dwp8uTcYrM63/LEvQJqiJ6LdiSNGs/zLwPn6S2Rt6aZAiqvGDbe4mk83PbmdblHPOxuLojxsS+HXSjsF",
-	"CxCdXpS2ukLacvSGbPpjdPmRokphDXSCVA4NYK97AcE94qD99VhRwkPG2f5gD4z5XJooS1mNxKLr4ly6",
-	"MBwZpYGl7FCQxcd5YFLPqvxDTr+jNPk1wv0lCGmHUl+GpWUCsj0nzCoFSd+HEj8y22RsAnwqMjklPvOn",
-	"842MA4TqoZeHTPOrocy55RUGmZ1oSBLEr/gCPHmj7Fasd3B9vU2tBG1ShD51LhbKIQbReSclzmE06Ww6",
-	"Nz6LLaE2GktzWq1TBRF25LVCMCUh5t0jmZX8XJSIeMi1wZt1KHtLuEyGXShKoRX59dJmgez2NIc+3auZ",
-	"cE2p+WOX3iN/SIq8prKKEqS7NEJ/xaJ0U0N5JoDBWMpAZRWbgh5NC4uR/oaPBaTrXFDteMS8A81QUnoz",
-	"vI8NXe9iit0HIClKWuWhpPYPGPp9ePgzJDj3UAEnL4Se6YLufc7Ofne8s//g88M46RVBTIbJZ9ywGdfG",
-	"p6gRMlMhSoL1jAKFn8Vc/xn5eE4FbHvHwbgZnXJrhd4+ooaGEvKOxQ29XU5QRDtI8yvKjna+sIJS7J7x",
-	"qYD8VIlHVg+DSlxqVTfkkFovp7332Wce920oWThQn31GGabsXMtqXPuDvQaCO/YCWUWvuXKJy/Gz2vKe",
-	"ilnJF9isnosU00RRqnGc0coqXB+O1zbbeEyHmIIr/jBKGVEfbiAAYCYqi4uJpXG7ptE7CTpMHsH+UNlq",
-	"j2AKJ3SP9fD9GkdCDtxKMwToOxg8RDAyGnc9yUQBgkeF0zUuZGEm0B+o2aVrDY3BXnbECUgKNPAAKEso",
-	"DmpoFGTeiEU4WrB1eilmgsnMJWQLhmu1lrkT0tJoC1/22XfYyxPiWnZAkXXIQuEKhHAoXbY6l/2Z3NG9",
-	"CLK0PVOiY8DoVg1Dxrl6RoSevzBdsl6fDidlPTWjHFjbRw5ZIG2yU6nzFo+aRbJ5Lnz24d4BqOy9Hgg3",
-	"aGHY61dPdr6EBGglkT48Ojt0HAGsBL7x6bvIr+lg78vBUPbc0CG84hzGrAIOZjrcSo/YsyewRCenz55Q",
-	"Qj8hc4AveFZIjE5Qxm3IoQzpoqGt9K9Sj2FAywNTAQ/Mm2I2E/kROy+5fIN1mvhFn8ZFm5wS8WK7Toqj",
-	"BeuzE8xNaIKxkYAq5YIokEsISwkMMb8prQj7sZIuwN/9x8ACqaulTLEhW+ybQmLC1oWAXKWpryHFH1g+",
-	"9RlOvROK/9g9iNJ7r3iIxfFCqgrjz3pRkmzp60baR1/KB5vUXifsz//hf2WDRg0hE2MojH6AYW/7e3TN",
-	"i6EMkwDJ/7D9qpXq8myM1IfVLBXwL9gY07wllBJYsAHr0SfEiu1tUz7YHfYiQoKcCQ0rCWipjhPwmctn",
-	"KAMyxC6sUXiEGgzLhufVrULMcZJ5Cw+ip5CC23ol9eXY9gpZeN9sIZqvHv1tonST2EyjhWjGtvvsVF25",
-	"m9alMoT7OnA/UBO+RdKLvmR0DuJ2C1MdCtKvygWeAmQR6EPKbe/42bkRkHUeWspFVkx5SRCzCaUVJLqG",
-	"RFgilUr3+g/Ezn1MGq0ob7+aGy5z40EgFWRGSb/mXwNBfSrHwWOVlcWbWj5CgjCjRPlhRjQlaOSo1wIm",
-	"xicGF2VJ10y4UoDILgiP18Ag7xkGZzpQVtxZVFzGCW7zuZvS3E8hkRruM+NWc0jvE2BzGPMp8BmPrncS",
-	"DID3cSTX+eF6mubsDEDsCIYTg/Dxo4PBw8+JF4ryYjrA15nLFNs5kSttj/bv0+2wZ3COCVgd5hi5RJrH",
-	"HgSiIXpOYLPh4AXCSmQLtDQsOFVBEUgniu9MwkIVXoLzCFlw0eOdRtZoh9QKVUHeDiiBEgseZAJlJTbJ",
-	"5VcFgcVpkYSTHkONmK2OUP6U3CFqQobCo4B9yhfICZ0rcphGkanKy+iSZN0zWGkugCnWkUkfqnDYu6iM",
-	"dblU/V7wU97v91O/bqSZu8ZZOBzKNE2H8q8cL0MNR1R3NlFWIVews8d67mpdvkK3hxK2d+KlJhIo6/eB",
-	"J/1JoAmJpzBD6ZcykQV8L5Jne8mg/yAZ9Ad7g/0kWfvF4OGX7V/sJ3v9AXyxP3jQ/sX9ZJ++ONjbwy9o",
-	"9/j3CRZ+MEi+2xkMDvZXfLB3/z59cD/ZdxO6wo/gdL551FXE8f+NWLSo62Bn4E4LbCBeGS76zknC6B61",
-	"Qp33nmmNNulNtLWqG3pVv+4gM1TXvoUgB1Sr8CoSpPLIX9XLiBO/g6RDVRcD5w69U3D5NEJcVnXIc/+d",
-	"J+2FL/DugyGbzCPH3GTLC0b1CpYnAm9+eHguciKRMOZpIZ8JeWEnsUI5xvj7eOGCp/ObogT1vAoO9EFG",
-	"OmTH6QG/6Wi1dtL8UC7pcBKyCblC7moIiPxuwZyhIHJ9adMVLE90isoDn4uyMF7uca35uUNLoGSVkxk2",
-	"2lBegADdxVvmXKlScImboZuDjot4dh46ei7/VWI+f3LO+QXiUipjGQ8HeVzY6DDHFoz5OtfoOLiyxXix",
-	"QSau1QYMT2+8+Zd7BeAh9tgz/S5DRiP7AKldg32GntWsxFpkosD4xDpBW5Vx9Ra8zulcfmiEGujWalr9",
-	"yR3ml5B8y9kDaPPe6RG7az8Z+qSeZ8brV+qnx3k/9F3+fqddaKbE82yo12KZYGVbjtKI8uU5LIo8PXK+",
-	"HN4mGCf6AXfoNh8Gn2mIar0ogEdBidJ1wnsi1rLl1FMxhMBf0KS7yN4oWU7k0xD066ex09BQPhIaaEsT",
-	"JsdTmm9OktgSMS9r8d9mKHORFUCyEtaIc8NsNM5DKWQmGcq9ftTKVa2LKwO5D1nqBwVJlfbjKjI1L3NW",
-	"M7I2Pr/fbDHgkhTSuao0ShzEJZwFAyZjCpTbKr3wBlaOZpegecIo8kZdD/qxf2O790tAOKpFvztFhdsN",
-	"BAIU2R6oX3FrSRPSBovXmuwFFORliBotyCgjSkJOQr0mKrmWgHA8V7hqZxduSuA7rIAKT4QWcCWuALzx",
-	"6ZmauDdYA9YNfki1HZIprUVmUZHpdQzYdF1iu4d2MZbrYmy3nW+VN5vDSvopL2xrCig3aVgHzRf5TUHR",
-	"o6H8PN4uNZCAQ5bCpsBJ4SVshy/ibyPsAdYL0giclIQsbQF+gDoLSZgY86cKKHjNdTD4BuLRZkXkLAZ4",
-	"Vz4i1lHXNFCEF2h6IbHZDCVZ1I4xHOSQxRf+eFLoX3vTVYWxhLY01LY9+d3TU3Z6AOS1LAW5mKVfzWUO",
-	"dhPow4tzI/Ql6c0N6xHwdEhV9frk9XOWqVyQysjOIy/Bmq/jIaumgP35f/qPhE2asGiy4fFQzrQAxabk",
-	"2iWsx90NJTIuQX3sLGCEGYTdOWJpLuCiTOkEVrsI3yC1fIJZzMNCbvdZfdJqBsjFUPoZ8sY4VCq6BXd2",
-	"Sa2uPIdYqbX5UJoZ3IJmIoRlV0jr4DdNNyzZvORov9Dot4d1/iZhv07YTsL+bcIsPx9KtOoFMAzuLqlt",
-	"NtNiXFy7KYDNwmfKWK1mE+FAugKcubujOFx/iiaK7My1MCKcElpvyvJEumR/ScGoIVYIUtE1p+x6J95p",
-	"k/KLncv9Xwv9BU2h32ND+btnX7DL/f6D/h5LX5y+/sPpYC9lU2EM+rEWkj0+/YKhEwNeSkqKKOSX9Z6f",
-	"/S4ZyhdfndKrF1/9Lb6moR7SwBLaiHMJVnF643DWE6aqDTyUtpiKJMQOAGc0Q/dXqttTCkG2TQczb8QF",
-	"fMOEpBsPsX251gU4xJGXAvoTPH/27CUba8LYUsBM/O7Vq5cQZy6D74ydaFFBvHPJ5jIT2vJC2gU7n+cX",
-	"wrKFcF4CEV5VhWFPQCC4OM6uskKiOA2OYx9BsAh0Zp2e6thTG7/hYFIWM8Eq2tOvFH/qHO58ZHjfU5tG",
-	"87Bam7akadxatbVvkTPDkdxP0tLPLy2d1YEGyV9/Lu/UtZJEJ8d+vL+fJdUTsZuBQnntO9QPzAhvgHV6",
-	"LtFUthxwDUE/88KwtxTSXjgWVmaiKTbVMmA6LELvG1EZAHqVMAd22bFzS4rCcgPrV/l2O4OiU5tWeS+r",
-	"2ImKWbnXDJqA+32FLyhb7woKM1rnyAuzJEde8Wq6j5xbDwlUcHd4H/Xg3uU1PQgLipKVMM5VYBW0qrN3",
-	"D2XUKkZsVPxeUwYHvwK/F9yCe9mN3P4La0Q5RokAIoFRJ+BHGol5c3mjV6i79BxUJCX0FmXunEWhLUxs",
-	"EiA/nSeF2xpHwT+BFXnNBTR2ykTjMNSVAKMFIpDDFvOyTmFDVMeEm7hSJ6b4oZEUMJTV6FabE90EvteF",
-	"ePf2HternwnEsXY/tt5fQfykrVLoWppf5zX5CYXlk3Xhwys78zzsRqsiO8NbD89iJ2K6yW2+Rg3qGtr9",
-	"IbhgvLtjRei48kEjcpkwnmllDIyLzpsHoaBbE9WkPkF5pCc9YjdcHqEpd5E6+QNVQUVeATpTvwgEy18A",
-	"BA9c+aatkDeIiq0UOZbJCuB11Ya+dLG5t8F0X494Dj26m7DnD2lGqc/NJzHhF5+ItnlKeWO33pnA4JnC",
-	"nSm3Qhe8vENji0udUWmsXRPolJ2pfCUClE+t+Tz06UOejUZja1GhfIc+xR5+EFyopa2yCSDUio2+MT5U",
-	"JrQTS7XwQE++P7DVjVXZG2aUc0R3ijQUc13RDLXNKeoFUxcsIa5nXOYiH0XqNpfwK8WUEIDMS07tqXP1",
-	"TUOehpT1fvonxpNKstIis1xezEuuk6Gcs98wvvvnf/wv9yFlV7OHStf0eOR/O9NixrWz4UGAHcVShIES",
-	"CFNh0SLnPx6NUYfto/PcqN1rF2dgrJiBxaUsIFjEeWGAbv0SvIxJ3Tp9Fu7YQg9lGKfZPmKRlJ+gOhWr",
-	"8MpjRBwI+v0Zd+DO9Po37gH76U/sv//PzHVhF5vfDtZJLUpui8sq5cdQRmsCwvo5esxWDdxzQQEoltIw",
-	"AO1/twcz/tOfvt0eyt5fn/z2Obgss5/+9wf9vf7nR+zxXHOgMbsnT18dn7BvXh8/h+xsffa4vwdO+g7Y",
-	"C01oFK3vossPMXdojqImenKj8No7GDxcA3rVJGMfCP6q2czPJDQujXYlT+MuIb+vb4c3FS6utP3O3P0B",
-	"1uuTf9snCfSjZRFYuipvj0azcj+/LyvYKqYt06mbwaWgN38BUlZHolTRok+S1i8Bzel9jtJ66Qrj8zva",
-	"YOK05MbMhWGcaS5zYHWgGtYLsfx7+1+y88Ka7UpTAY5gkuABKMR/KI3ItLDBWouWAu8dLsvFUQhZEtrj",
-	"NsBz5JEcBsBQTriZkBMA+qaV6sKwwq5mQ15BVz8Q74F1/0wMB7Z9Q/QALlNSGZPcAoDzgkQe7pd+4D9d",
-	"4B+e4ODZZpw2S0RoHKnoeGXT18EPPRelsKIzfTkVl+qNk3CwpiMXjFiFjg72tisxyyEYO9B7l5IuioP1",
-	"hjKN9eZUp9PitpGKR9hdTypuvv7fQ8X6+vXTR63X/sHybNG0fAJZ/EWwubAU739MtJC5+ZCJrYzDel2R",
-	"zKoOnBi5O6PCYijBvTHs/ygnSWpKNYNwa4zDPOdGxCAXmI0UWnH64LNHWFPlcp36EmnlK1p1F767KmSu",
-	"rqoG9weAvwhXpValj+s2BeaA+umf9tnZI9a74hoQF0mT8tM/3ceH5P2wjeYTJcEqfzYRVxOuLfiWast6",
-	"T89esC++/GKws++G850w9gKDWdAJYG9n31SVJ2xv5z7AHezv7JuEne4cmIQd7OyROWpvcA3hoOCWtY2a",
-	"EwETycknv5pYU3eTN+QYiWF5cWavo0a2SVLGlEUwAg1lGho4ZGNeGsrJdVmokpRpXk1mqnSWEXo7OIpc",
-	"qhKdM9BzcSyufNA+IEw1F8dOhHYeBmHRIeqb1gOdReS8LJ1XJjVZmGoS+uyYAuLZHsbCV6MaStjYRwzi",
-	"B2VGgIce01LGOwJ9XRHgsie5RsQH6+cCtX+wiHismLvQk4g/xLDITCTL6V/VlRzKb04YXuT5XAtDcU61",
-	"xK8J0wJ0mlbpthyw7RIl9mbFPbIuRvluoIo/RgKytjbCaDsHDuM8vQzFWsKZH2O4KNCP2EUJbL7oP3W5",
-	"MiYdNsYdhFM/47aldXF9Q+tW3UHbv1NXbMrlonkmk4oNQofpOgFNCK3NRkR6VS/9+3Ykzv0YiHO/hsO5",
-	"/5FxOOk8rfLFEbqASYGj60eUBBwQmVek8ZON7O7Zoke6GFvPcTgYS3+gyd+bvMuRzWhc5rA49Zs3Yqto",
-	"r99RsjjiunZnpbJ9c3nxgdgvbKUWo0Ltpo0o9+paSFiu+RU5Jla8DnIphzHv4JDpyMWFrrJMSIusgXR3",
-	"G/FEQxmxQjTPIbzO14asB50KgR5DpUDENY+diFCVJdzdpy3MiFSWer3u8ntZKnv27W8/3YGf7sBPd2B0",
-	"BxZTfiF2zeXFr6+n5S0CJ5A0fLrG7h5mOia9FASBtDthRMXu+FaCtkU216A1BKp4LrgW+nhuJ1uHv//+",
-	"3fehweZ5qFJWkkOkGtccKSqH+l4ljJvtfrXfoVQLBtQTgnWO6/IHjfybo0hhuEVNVKWbk+VKn8pLoY1g",
-	"Ve4/6K/X0tXQveL6qs/bKv3m2Geuhr7weV5gYtOi7Ndzq4irtsJVgEcdSTwJbtxRVEW4N7MKhLzWinNe",
-	"XGrm29Ygh6SK+qiAg5upjEPtb7OWiikfGSbVcmagyGuFVanP2EyVRVaIeFpdgbZaXz4lrVb8OT1o+foZ",
-	"2HWECajm+OdUWF1kflhRDo1+E1eKlvX7d//vAA==",
+	"7P1bbyRHlieIfxX7s6eQESpnMMhkSkoSBQzFzCxld95EZko9U5EKN7pbMLzTwyxkZkEySso/eqeBRc/r",
+	"zMMA87BYYPby3A0s1It9U2PfBtWfYfVJFuccM3NzD49gBJOZUvVmAaVkuLvdzY6d6+98v5WpyVRJIa3Z",
+	"Ovh+ayx4LjT+eSKsnh+NrNDwKxcm08XUFkpuHWydikzJ3DCr2CUvLDsTI6UF01CkkOe9rWRLi+9mhRb5",
+	"1oHVM5FsmWwsJhyqmhSymMwmWwf9ZMvOp2LrYKuQVpwLvfX27dtka8o1nwjrunE80xfi8YPFPrwcC5bB",
+	"yzuGFTk0WcDjKbfjrWRL8glWnK/syr/RYrR1sPUXO9Us7NBbs/Pq1eMHW9Cfx7mYTJUVMpv/lZgvduSI",
+	"ZWUhpN3OxsoIyd6IOetwBuVZYRhn50rlLBurIhNdZsfcsgl/I+ANTFgh8oGELgpjmeEjcciMEMyOBVNT",
+	"oTm0csewqM3eQPrR0npV4436ug2drc07v3oi5Lkdbx3s7n2ewDqE3zDr1goNdX77h6Ptf8+3/9jfvt8b",
+	"Hmy//n432d37/O2/2QrLZawu5DlNjjRWzyZC2vYVKsJ7VuRC2mJUCJ0wbthUGStydlnYMSusYXomzbJV",
+	"rBq56Wo+Do1jt1/wc3E800bp9m6nUlzZYYZfpEyNcDmmWlwUambYlJ+LQ8bPDAxrpDS+HRXaWHwVRvHd",
+	"TOh5NQyqbmvdLrv+QXdPZnLZEdAz+X4PwFsob6ZKGoEH8guen9BuhV+ZktYtPp9OyyLD/boz1eqsFJPf",
+	"/o2Bjn6/ZosvqBQ1Wh/qU16OlJ6InJm5tPwqYZdayXMGO5IpzTi74OVMMDWzpsjp+FC1B2ziyw7kX54+",
+	"f5YwzmgHs8ux0IJxJmeTM6HZmSiVPDcJ45LN5BupLiUbFaLMoYg7IEzpgdRcngt2UaiSW4FvcalZIF10",
+	"zHMlDJPKMpiaORzbt8nWsZKjssg+6OzhRhFGzXQG5NJYbgVs3LMCiDi+JPrT4URTGWx1cSlyxksteD5P",
+	"GB9IegUnVs0s42xU2ITxUBhe0MTziWBFRYqQJBpblCUr5ACGfz62XTcfj7AbuZAfekKseiMkK3n2xjBx",
+	"ActnMjUVrCyQMBWSpVfb/uhs4zuT9raQ6MFO4OVDrZX+kN32DTMBLfcYDONM5XNm+NwwJcs5G2wVtY8G",
+	"W4zLvLbIQCzeJlvPlH2kZjL/0PMOlCkP27E6JOKqMBZ79oLPS8Xzl0o94fpcfOgO4oyKq0wIdzqM0BdC",
+	"3zEsU3JUnM+0yFlZTArq7anQF0UmXkl+wYuSn5UfvMM5t/yMG8EyLmEmz2CteTYWOZPqMgljKDIBHIkZ",
+	"z6wF8perS5kgQeuMkIZe6sIij1IYvLm5zNzoDdSYuz12JjI+MwKv7dB2YQYSCCuX+dmcWJQmN7kd2Mm2",
+	"wbqvdyLGE8f7UqmnXM7dpWN+ETJxx4TTo4F2FoapC6FxBtxOuK3hvpJ8ZsdKF38UH/RoPi2MKeR5Ul2X",
+	"SbgElYYLQb0ROTsTXAtNs9IY9DfffLN9NLNjIS30UiwyLOkXWDqlq4JLliKNShm3VhdnMytY5+TRMfv0",
+	"s3v97moposmK0tRNtcqEMXAIH0pb2PmHnMFvRFluOy6lkNOZJS7gTAv+Brn9WSk8L+mO46GbAZMiWTQM",
+	"ju1AqtFIyByOKLIfFQWflcJdm6+kmU2nSluRPxV5wV/ifHxolgKPxB3DjqnVbegFHA6gQko2pBjGs0xM",
+	"rekhT+vagC4c4XMgNo9h2rDveV5AGV6+0FCBLYTZOhjx0ohmT6rSzI61MGNV5uYQZxL7UIqRBb6QWZS6",
+	"oEtCnhdSoFQ14rPSso4ZE7NXlnT1K4kfToQdqxy34jTqx/dbZzx7M8x4mQ1LdTm0qhQaejCcEmMnrrJy",
+	"ZooL8dQLu7R/YXdwu3WwlasZXBQJSGX0wW6/n7TJxsSbwpJXbU4KOZxyY4YjzTOahu9X1r12zR9mJGM1",
+	"USYTOTe2yAo7H/JyOr52Nx7hR28T4nBg0TcsB7zeUI2Go2LTkhMuc26VbhH/j8cCOMhLEP7ZiBflTNO/",
+	"tNUuhM6LzB7iD2XHQhvGtWA8vyiM0nOU26yYmGvFQWjnGZ8I6s/VYyq0W80v15qDuDmTxXcz4d7DarkB",
+	"iHLjUV8NtXm/WwG2cikuRGmcjoI+vReX21tUFFFBPTTfzbimi/Id9r+a2bIQepgp9cYM8/c2WN+OsTPU",
+	"R/xRvL+2QJ+y4XpfCF2M3I2xSAnq2/6H3zz4AaTuqAgxf1znrPP4+Oud4+Ovu2zC5wxoK+PnvJAgfFgz",
+	"kFJNCpBQUGbvsQeOCu/1E8aBE2KvTtnDF0fs9Jvtz/c/ZU+RCrPP+/3+g4HMeFmcuRslbp6OWMnPlMaj",
+	"esc48s2MsAYaZurSKc/ew4y/DU/U2d+IzMKEVlfTC1UW2XzDm+0hSqXhUoN7aaR0JhJ/b5nqxtr4iloc",
+	"6rtfOJtcLGuUXn5NrFG45ZJYo1TrFbFGudoFsTk9r1HwFnK9Vg9qxHqdEjXSeyMKuw4l3aBUgy6uUbJO",
+	"5dYosAmNAx6X6FxZKlCGgZTcSvEM6+QREVtOvpCVvLabb2PJ5w/xQjW2RtuGXXpulh/HZCWxWE0Imvuk",
+	"vhMXz2FtzdqXfnEbxQds5Rq+bqPCfns07TamOJdYEcgOOMG9rZV3QL93L74Dev1+f7dljx1JXs6tuJba",
+	"1+k1aezXN2MkW9/NuLTXFXGd+Qq/fYvc4bVlXsE3zV2I/XPlW6c5bmhDEU4yTqXBluH1l4GdAPFXCxB2",
+	"QSQGIdj02DdOhbD4ufVmkYGszifUYfhkWgrDMq71nKWFGQbLRsrOBBoO0uoRKc5I6V3AVWutyJ1kOJD+",
+	"O4asCDsaXu0cDQsTGB0oWw0qUzIT0uK3MsHecNcfJzo8Po3qLAtharaMy0Lm6pJ1pnCWpPVqBM8LKW3u",
+	"sIngkj0+Zb6WQ88mDOSn/Z//9j/v7t1jv0lYpiYTJdnj4xfbT0/ZFM8x8BQjrSZsIiZKz7s43pKfnwua",
+	"fdDXjEWZk8qZ1gLsKWR0KQy7+u//oc/++b+wvChnSBn/+b+wEfF4qpxNBPvnH/1w+UTNpIUHuZ4zT0eA",
+	"ubGh7kKeDyTstIRp0FG7bnw34yXsftePGq/Hs0yLvLBuhrU4n5XwDguePn8B4xYDiWa6Q8aruthUaKOk",
+	"M3l4W4AWZlZa4hbr5zQXWTHhpVmkKCfQVTCKowJ1wuWc+Y9RnSp4DgtXkR3LSJ1sejGV2W1nNKObORdW",
+	"4KwNUfm4RPpZJR34UzP0J2QzylOYIe3I4bg4Hy/nOWLu+TqBpaoTrqBbqdKvsb6WG/vKf3kqkJiFbXjj",
+	"Ga5qWJ/iJlvR3hi6vbG4z7y8dJd1LsdCstTvshSOItmlu/UtFd9buy1+F230fJYX9uGFWIOa1w9IJSE0",
+	"9KOgDb3khuVKioSJ3nmPpXome5kW3Io8TViK1LZHpLb6zadTrS7iJ1pAN0We9hbdEhLoQZtlH7htTznJ",
+	"+ocKWg4VtdfTWHhuxbYtJqLt21xYXpTtTOSUa1tks5Jrk7BCZuUMlbvcm1k12he4UbLX6mURX8PcbvkB",
+	"JluBB3Otv162jk/U+YarKC68U9Ba4ky0WxbkmcYIXM1tfT3meHuYJZuHLgggzLjRZe50zQdOtYyMnL+A",
+	"I2NduAczXVihC06X3XR2VhYGzGTnsyKHwi06hPq9MpD1i8VpGOB+AfUym2qRiVxgVbS47GzectsMZPCZ",
+	"KgU3wvn0+Jle2F2TQnqF36K0iKLkhssLSzizIl+c6UfwOUPCgiwGVM4yNStz5oyLvizOlmQpCAQiR+KD",
+	"beHMpLQlU7JNX47n0dY+U6oUXNaPzcKYA+VdPFCRTgS3AvSIa+dOdMjkrCybIxhz2CoSvUUu8W8bBtLO",
+	"9kMtZM4l5dBqob+5XYUdCx0ZEZzTF7IG1COg2rmoa4lRQ3xZGOEGFquJFydvHZGhpmeglYpmO6qM7PGt",
+	"Q9EimJ/o1NnKdAJsFR6nVgpq4NyAGLpkHdHpzX8DSzMR3OCZRdYyXsp3XrB2eabqod9xYZqS6pTUBVA3",
+	"VSvJbjXvbR6D8NJfRRHtmqKa8ICllcgPdx7J/GkykGkk78ObpqgPz4K0DnSqUBKeBfkcK9EC3lyIwP0N",
+	"yQ6bsDSI61gKZKIZL4cgssMDJ5cbrGWipLJKFhm8yXUxsmmPRU9ZJ8wZEEG3YbrMLYIhOYrkK6uAsMC+",
+	"yWw5Z6ESMrOjBKT0GxT/uDwXPd8guh34VWLcskKeC2MPsIgUl8FF1JRqKmrCGYpLKBw8CFZZdFyqXBbh",
+	"bSXD7fXZRBnLgMRLO5CeK6E2TFI5QH0jjD0HUZTYFBJZWccIMZDp7x++ZDsXuztWC5mbtNtjj2tHnc1k",
+	"KYyJSUdZGNRgM24GMkxq4s4iFA5GTjwqI+ApgLmRbLfPGv0cSPS0SXw7VEG1VB0k6vTUS3qsQTDBeSsN",
+	"wvWwkMOcW5F6UlxfjIoS65l0dm40A/gK2ITjrVyaw2jUdwxLxdUUjmvYpyZ1ZLSwA1nvcrW/lA5zmWCv",
+	"kebCHDrlv5xNlqjV6gq1FlVarAxzx2sr2Yq1X0vOVqwJw6+ik1UpvLAnfu9vJVu4yYlI1acaaZO8EPpc",
+	"SKREwHgUBkTCqVajohQRUXLkONm62oaxb19wjasAk4Bk6im4AruJoAd+NvDXE569eT56VFj/4MvFWcHn",
+	"X/DszXFtZvDxyWmYHfrtpujUjeqhmyB8+TiaJfc1TdUJzRQ+e15NF/U3mjN88MBNHP7w7ZjH8gHNHT4+",
+	"rk0gPnrhZ/GFn0Ty2Kx0N23U3JuzGkoep9GoCAgIgtdoGEGoDf+7RsIET9ICec2Wy/VSbZsC9CZZ+IpU",
+	"nEDrcCde8NIkrN+7B8S337t///612s/79+/X9J/32ntltSqfwFVqNtQDno7F5Zhr5N2hEvKtMqzz+PQ5",
+	"++zzz/rbe13PEgQvVPA+KwuJbtdNDqBNMEWVxZrWAleiVJdrFsD1F2t+fMm1BAXBBh3yRdbtUYPncd2r",
+	"19PoSG3USW3SWvkcWqqTWdnK6VRXITCPnfBTWMbLXsKOy0L22PFYTHps7zPW2b3/+W6X7d+/2z1g6e72",
+	"nkkHyLWTpvFMzJXM2U//sAe3dsf1u3sIn941Kfr7hG/ustMHhyzdg0qYvVTAKEgjshnQHv9ZuPaxRtxv",
+	"hyw92d6nMiwqkkD1A8nP1IVgv8XvvWMWsu3oP37Jfv77/7RHLe9v75qUjdRMs8WWBzI0vRs3vdu/SpkV",
+	"slbEuSPh16gTVqPAw9QvNZiyrWQLpmMr2dqjXzCcrWQL+gPv+ldrXg6wqLtUA/x11/+1F56d7Pu/9nfD",
+	"d1A/7IwlARbPp/y7mQCncCMso6gI1oFj/On+TFdHewqUQ557TZYPVrm3u7dW8Mpw+/Vv/02bTIIhRZta",
+	"KLz6n9RP7JvA0ggOnTR1Cdl9zGGTl8ArZ0qMRkVWCGmRka4zByYlkTlTF1wXXGYiRSchMZnaeUJ8Mp1o",
+	"QyorKaB2aAa/A7KXsNRJkciGpSMQvhNXL/oooSg+kCCKt6i1eUZkYshtqwxYcXAgPfuv61fGKv0Yr4xi",
+	"C++ySO2zUpb130EZHNNm5vY2U3u8MosDfyzZROWi3Bbfzcjkq3Qu9AGDG4dr9oezfsLOdl8n7sFQ6eK8",
+	"kOwP+Oy7Gc81B8nWfZews73Xh0wque0qwNoN8NfpU/jT6Us6jk2WLJVK0re9EF4yxLdpt+Y8tp6PgNMi",
+	"3WubiOXsxHELEwHb4YwkJDRreIVAYC7WMnUnW9Wmb2vXvwMZQRdXvuF41RJmfvrHzl//P//H337z192f",
+	"/4f/66f/E6xGlzh70Xe0crUpu7W5Wz2xpN5efbBcbA0PdkY0WFq10RnLRy1GKcc+s1ycawFmxREbaSFy",
+	"NUmYhNuKTSPVTWRlIi/Z4YXQppXxfRkZIOFk0PdEoIIUSKFx1qv78fud3V6/129X3TvPLCWvO9APw4dv",
+	"ky2wVZo2VWZmwSCC3r/UEeqeU71J5TVva7thPirso5Kft1GSseAXhTCWhMrrKkKB63TMNSrminy9cLwk",
+	"DoZsVZoGh56GzagwtpCZpfNrvHAyIolktbmxDLz8ygHRV3AaUH5v7R69GoJqfPmmoo+Y/6j9fACXUOv6",
+	"blvXkbxe13MkvPC1bDs+7n6vJox1cJPm6AwgvGJkJlEvcu1kBnK+RvznhXgWvgbtrSpaLynyEwzaFMeS",
+	"JH6mlGa+wwk712o2hTiOuaPkhaTL3BTV9ba+UzL08QV0q+1A1JzHmrESEAMo8jqBhkvECj0pJFGUzowE",
+	"aud6VbtiuzdU2qP+8LpxneBHbyM9jclXkNYw9bm4KKjrpjPfueomnnP/03+7ZL9jkl3iuJnJeCluOgA0",
+	"K107AvrKfY+KIYW3Ay/L56Otgz+sQ21eN9ngF1pg0LOSjEsWaHU4qjWXGTL2auG2IdkIyGdvuD69a3DK",
+	"LWAEfvLpgyUcApp+F/b2u977xnI7W++UnNKnkQdWfRivjl89ZZmqZLslzkNBi7RAWz2rNFyL6H3tvg7E",
+	"z92E15Zzn4EyAjfzMOMyL3JuxVLSFL4ARXymtHC68pTPrEqDhxFKNFdA27FiNJGXxRvBOigIwa4jFTZM",
+	"UcRJLCncXZuMETU69r1so2V+rKAzlO2KwC/VpWucQjzwkOeO85Gw08rCCHQQMrMJ/CM9ckYa0Zl2viiM",
+	"av0z/E0osniQX/r4eMFm0CfUoCspmAOxIL8SWh46xRjqhTdc3JshatpFfuu9cm1nY6WMMB5lwVQCd8J4",
+	"aVRlW3BMA+0BLlEjE0AanAGx2ohOXD8TtB/zxqjCcG99XFFXuXlDFxs2/keh1XDMZV66RV7cXPBJnRgY",
+	"Cs10HovsUmjQq0yt82/QKp9lcIwKOSpkYYXfn4ekWvDzIgXjWhlxvfcJ4UkQAQ+M3iJbl9QxO7zs72if",
+	"Z8viXd0++200xnP7bWeyOY0N8X7xNqmJn/XrHsWpum0HGggWo0heDqxZUEsEptkzHBV9DbdGUtO51OTE",
+	"SCWyIIe1KmERJUc+Ujq7XrPV0PsscbGYKDKB4iZFEWp9OfSMm6LVh2fu/B+8T20V0VJIsPDmppX43Ug/",
+	"5LV819/Ms8mE6zlJn9NCC7NcVC9AgOIXRJEyAWx0zWLpjCUMEWJqhgolxdIJXMLzRVIdN3YYu72vT5e+",
+	"jku1k6aSox9GXD/jFkiLv564TeuuGG3mlgVjA66A3w0Jea5FM9w2rGitl+7zJ4XZ1CXxxhtoAwVjYyst",
+	"aAe4GU6UvnZLfsnNU0VKgQiE6LpSz8SVjQCDFpbBbNWri/qzzpQ/i4XWDdTm6LXHY30nHX2e5+Yggssh",
+	"bWenTWHXTZylRJUEwqFmNlMTQaJGUA+OZjJzUFl/+ifkKCHqkGSQgRTGFhOH1SOzsdImCbabYDlnznJe",
+	"+XHUfE5Ac+49oY6/rjSg2Ztt7w0g8vr1DILhHOy+udADmbr6yaUYPJzTHjuqUKSM1RylQ5gq4x3eSYFs",
+	"egP5Qgu4QPDax/udGCLHEs8Mda0Aozb0ZBo+RzXtQHZSIlMpuAjJfIhfwsDTbqtBgCZqkRCi5gqcJEGP",
+	"pEZuRuNYBNbBtzB8itlweA/wHUw8SARGdA+choK8NP5mlp+TsnO5G+SiahX9OYkeLnwN73g49y16LXU+",
+	"vFqBLAc3VK75JcIBcFaq88by8qvCtHvmuU0KlXvLnPfXyIkDKEv8K/Rx6J3PTCHBw1Qv2uhicLyhM9J9",
+	"v2K2VoqubjOuTd+cR0RQ9lSVf7q/tPZqq68pbduxsHyTb4crlI3u+A43Ufk0iGdzvquVjTdfbav5QTQ6",
+	"mIQD5TdetQZt87WUFtMKbEaHn0uxoB+soPfygp9LZYDMQGRM9RMOQHXrF7YB1sQ6UpFyX2mQrrRSRMlq",
+	"RBHVQvgBecn08RPvJkVam1UIG0RYW21S0VGEQWG7gTQ6U+3NlGxZ0+dnLUMWBisWhJvUXujahr2mtt1H",
+	"l+jlDasOZolWo4Hm5zftc3B5w7Vsj6Xd7fd/+rHTWFS0PtWmurtT+3ljFSmJcTceDwnUa657FLo6jFtu",
+	"x24r58wXMISDhgVuOFISgZfp15vaZ9RIHbI+nWe/1W7DmZr2VvPcRFMZuho2cbRMS+Yw2pgLpytZIBCt",
+	"+zA6UEsJ6mlQ4jbV+xi/gWiJPXZUuROjf8WUEJqGpI5PD0M0D8WKSlpSf/nXv95KtrxTLnabYpnW9dis",
+	"+vyCaj3xlUavjqr6o6cnoakweCexbBriVXMWuQUPkJqNfL36RrwoRT6sHEEWo70qawB+5Iy/BfnpTLkx",
+	"sY965Dfc3YwNvTXr7WaW09s0fV4D9HA9zdzUqHNzu8mi4eOGlgunaF1Tq/vhNKGxyrFFa1jf9yu0iG0U",
+	"74EL0G7zEKA3bITRhQhaW4jcIfIEYZF1QlDA7xw5JN/MKPq7e8h26Y4h/XvvxpA7a7hBP4w9Rjbgia+z",
+	"ZfZaXORcWOk7BYqutuJ75px8C6kn/qY2Naq0AblezvlpQRiBok1CXnLHV2XaNtiCEwDIVUOKboVGrtV1",
+	"Vp+2vKqZsteCb49HEJePdPauxUZfoyjb9qMUNt56EtmSJVk/6L62Vovynd857sbDBhK2uw2OtXmrm8dh",
+	"wDpYLNk8vsvC7tuDyRe3zcoJjADFN5jC6iCtpcBoLFddP+LGtDzGtrmN11O+vxRXtkXpToYQQXpFh5Gm",
+	"C/mGccvOlB0zIQHC0s9iZeQEGCJDcWngkA9/O38uroUrGrj62lm6nf56ZyhoLWqoqTRpHKy2tfd+dC0h",
+	"A3D/OKc93nTZM7HPHktz1ClI53I3pEs0PaCQAXzGEA6UTRRqbrlkY16OKhAAy0vvk+PC8+pefCnEFozE",
+	"5TAcPjMcKT00eynEJ+yYb/fIQI5WdFJzDiS1jN2GsGMKxwuTh92ox7khhFJoIa279LcOcivZau3WmkKE",
+	"m/4HrmpU6X7jK3YvH4nLk1D9I6VP91Bs8AaKpTHPnIGlAVMhkJ7IMBe7D1ciWQDxJTkW8Lxdhfql4KUd",
+	"b0gTKsbSz556Qxsxn685NdTu87/a8l04ocLNXe6aatvcj0/XC8lv7nxCyIkwkLYjpZ2DBopDWFfC/yzy",
+	"L9XnQ/h4TfXGigj91eAv64HOLFS6Ev1loc5VEe1aZBA+PN+guk1VPyFm/hq3iYWR11QjzYVpdL2ak2jK",
+	"oyh1t0KhO61bsmIl2iIYHTIK4ml5cSXxLmiJo1SJd/7Xbqc2InM+3V8rMOd1M8FMP/n07tvWUJ3H8m8I",
+	"6Gg9YOimAauCYVvr9ovZrdctGGWPweyn2fHx14ALQrVDygyyXLmg/sje70QozJNEnJYrRE5URX5bXYsI",
+	"R84Qyz+lJy6u6Lts6H4nFeyYuwP1THZRPx/UJHcQKBX3RM8BM9UywKzX45NQ5C3cGjRHbXvP3eYhZYEo",
+	"jSBLaycwQGhUKLl8Y7o1rRo3XiButZa9KSi9hf8+ilaIT2KRXcAhdP8920pqH2K7lWTvf9IsbiVbYXJb",
+	"u+CsHhvC/K6Sd6eKePjrNUDvuGrXnYDKEw+BCAneJr6eKDcR6Qgg6tiGU4P7CgXkNcXmBQ7TzYFbYzxM",
+	"rWQvULPKen4zaSOiJuuLbNc4VxHyH02Qd4ViBTGTECV22ZTC1tMw1CO5VmrYqi/f+i1tNjAJ+yk9xZJN",
+	"ZPJrhKrGmlaqMd+P9gWl6LINeatqoCE+rXIUjw1OFNmZnhHqYIVplLC0VJeOnsIlnIbIyxbbJZVu50qW",
+	"R3tfq2TFy19NhVyWbM2NrDDMdcHFJJ/No+5DBYyimDu//fnv/6cu5mMLMuYyBxLkDxZdeYJJOCthM0Or",
+	"lBeFm/lkapWFJBcL0xnPo5/DxakKSpJ1kJuXRcRvaMjCoHcXCO81Xn492zbkE24Fbf8b8ShrRd16oFBu",
+	"Aj7SYSVQaZGJ4kLkNyMWN6JreaRFXlUqaJvXMpI01V3R7bXmndWmo6/oSlVj60JWAXmb0ZaX41jX4JW3",
+	"JdcIfmOgxjaFQ4t8dgOnA+M7XO8TWHxjdV50XROkkvuAl6UPE/Pvb4JQ3TT7Uq9aZ/kmuCAPPN6pd4qT",
+	"NriMOoyQhKJ9m4EyBhN5TS1LM13YIuPlEK0VKfDtfj90V8GMNZbI15KtBoUBwJLd3c/3727vMV/Gpygc",
+	"OXAq2wSMuRpmN3VXqQ3uJt3xc5Gw+Y17sQwCE2IX7FjMKT7BTy4KHZfjOcx4bwmiZhPldvmoHCfMqBB0",
+	"k8YHs3pTfL9StQgsj4+/ZF/tsdA52n8Ju9u7+9OP//J3O6c3buy7pY217fiE7fbfqUFTnE94OyMRdsa/",
+	"/B2eq6B8wiNVj6pJsZ4hOnnD/b5m1H9Uan3p5BQKfYFl2j3Z/+XvXDiTBHnbBRF1m2FANgIpk/nysLLO",
+	"5bjIxlSjOyMU73kKOP6LnEO+Rcu4cB6TZXRjcZOvxBR8GtwDNmIxPLzgtRiuzXQlG0PpOuMz6XhjQ+oy",
+	"tmMDgFkq0A7hEcs763jqXY/IEPUf+S5XZAMshrjWBVtvI/oKWjgvLoRcgonQQMFbrNAZs5GTT70XS5pQ",
+	"vsZmjNwkJEILNTrlVQw36pUm/lmregNyPeDhGfJzMRyrWZvD+LNwubpzlivnRArjuin46maR/Q6Ic2EA",
+	"3jGLegbweiNVV+nWFMrrOt/cxMEkKjVU07XiVULp5+77JSCnkTtKvDTXBeL5XjSC3cLZTWLisnwu27dJ",
+	"I+CNCM1yqneDqB/a7uuTGGroWvxqX+3yvt5Qw3QDQk0y5zvS05rO5ho7eJ3Wrndtx1qm18kSMPt+7/69",
+	"XgvhvN5cvRaBrIyTDkkEVW96Jul65xLiirbVaBujgxeQSQeSUvp10uAv6PKDxLCjSG3JPQpxVTsVKe42",
+	"sEcjNOF3J7DAYEPqcuerFTt6+PFSJJJXMoJykdjIW3DT+vyzz/evTfN3I2q9vrJgBRlftg/AeADCOs0P",
+	"ZQK45CAyOj9e8Ms4EzGihVfRhmRPeI677cqrX+gKcBSh/R5oI/eBcrTSM79ujUS+pAJM2Zz9jp312W/Z",
+	"2e5PP14dsrSG0eLeu1chmC0dyHo5+Hfvpx+vfvpHgvr8fP/TT7f34Mg8W0BK64CeRp4Jff7z3/7np1yD",
+	"p2RuE2ZEOdrGgDORdxMI1iJMccg4vxC5dcDS/WlJ3cvZb0EZAKEIeXensws/r3ay7rdn3aSGIjKQf+AJ",
+	"O0tYlrD89SFL761RxbfnCYuKJez89SEkyi5MTexm3GJ4f8IccLKL129oCDI2mPX7dwXrEyhgIUcliQ8J",
+	"O6u9c4DXzpcT7GdkgaSd3OH0ccZypgs4BslAumeC5bCvIX7+kKEZTBfCJzg9g45LcU6xO5Q1nCqgmgcy",
+	"L0Yj9BfFPDfdhJ3X+wVq4YmwgNp8zn7Hdv1M7L94gqjSU3Up3MbiP/149e2Zmz+YcHE1HRpuZzQd4aPO",
+	"Lk69+Lbz89//p7OffrzqQtDoklJDNRoZYanwHLbgkhr8ss37r1s3Il3XFCfqj5NBuD4ws6a7O/Nv99Ik",
+	"OAlhCCaNDuClJ4LLhp8PVb+VbNXO0FayFQ4OYHhO4fzew/9iZRRTHQ1w4YEb8ZruL3jin/iuRL+e++7g",
+	"s6+iPuGDR2qmXzwJv4oLUf164TqKPx5eTU/jzi4+fO76+zbZiuKaF2Uebgg4kWKa0wiAHeF+RkVphTaJ",
+	"Bw+p3JIifR8FF5eFsS5DBBvNNN4Q8CEt0Grw0QXM4Y3ASJ9jduy24X0zVkxzb5PxZsxD9NEIdx/dW3BT",
+	"IRoKpsRI/23acMzY3fv8Bp4Z/xZdM3b3Pmv3zXhXg+qfp5VylW0ynpHKjehmNubbwcBYhRBOps86rCfw",
+	"wuvCdiJTun7IB31/o8APKrp5lAelCrrJTjnBkm26piVBKG2YC8OG+QmLNiaiObiGpO1HcA1Gw0LHNz6J",
+	"q2wZ9UBbEjFQ8qkHjCyk3UFOwxHVEBrsNGve2ABPLpUHV6zhLYD0NDkrzmdqZoZQPr0p5F9srVxjZy8B",
+	"E03RlE7B5HCvowW9+imurOZTVfpMZvR1qSjjiv/1Hbzy/BP+rXBsILFUNdeHPZAdh0QeAz+1ThnoEGt8",
+	"5QHqFwcyyuXRTVg6k86kPfQ+A8CLnCLcrLc2u71XXS4ubaZUJGV5lkYqO/QGCliGFD2pWUrUljakF383",
+	"Dalb+KyI3D9WSof+u6hMBBXQap+q/CdAHavOLC9kwG9LR4UoS6Hb0dkmgsvhhr6j3t7api+Fb0C9Hty7",
+	"I5AvTiGx+fXgp40MJIu+d9OpVlcIjFJpPPDbVt8Yn5zdH6cI4AiOuMdYuY1w4iJviSVuT6hygYHCHhIs",
+	"TGpzTSIqsLgjVtNUxzZsRlP/nDwkVvtFvNBiymkRTq2Y3iC1b1l8N1MhZ+2UayGBZ80Fm02ZVRjlUaWK",
+	"TZjg2dj9ADI3eVJBVYRsz+ynfwD/0MxyQktpQZBw7Q4nt+l96Su1qnQVb1gBDvV2+0RV3rBHjQ0RTdrC",
+	"YKPONxpt3zfqrBSTlrj6R8fs/v69z9iUvmBk8TS9llS77Q4FlEkULbpaeSQTx1mgKEIy31Qo56S+aFJb",
+	"Aib7SGGoKy+LnBWgSXO7UY1GpGFkcA+4pMiU03Bd9BwY6iMo3HrdyQo1ZJFPd6NiU06Y1y2BkfiBY8eX",
+	"VgChRn+97cS17cfAp1jFYIldwscqyzZn9/r9pSn9Zqa9nS9fvnzB6APEsq1FDt6rZQ/a77fCY9vCtiWS",
+	"OR0rbZkhsIJASdz+gVpau0oPFl3OX5089jL03PtrxZX5O3+m5QHyOm+EmAp94L45cDsk7W01xerVYgG+",
+	"9WOMIrpXmPxrG+fg+zUPyEufrbGw7EwL/qYdVxED9YRuL9/Y8geMs788ff6MvaBCrJCY6RrCDvN5wtId",
+	"hC3bIb2ixH+E+5UBLXeP0oGEs3l8+jVy/yl9Ubi3B644nwj3uVMyBiAmYiSvcw+ncV03sxWg1YYC00U7",
+	"yM3x16zzm24r89QGUIQRW+5jO5+iU5aMeD8fbGnZVSVcadFIS19ye0O56OomKaSuthI//rZZrSXSvoEf",
+	"ZZx6N6TvRlpCiHgIEnroiLIUVeJDWzk1CH1RZBAN48w0LQ7aJMqVazBOs9KGMeHN4aEEb1C2MEMwI860",
+	"uEFhcNtcE8qsWbgtvfeJr2kTOMdY2EyqjezCkh098JHJpCAXOfqMI3ZxEDI6nMJ54qwKEbaYFZjYsttQ",
+	"KWhB+Z5lS2zjO3jV377neNvBoEQSwmyK3QDWhhZlBFCH7UtdWJESHcUHYIBO2eW4KIlK5NzyM25w3jhN",
+	"/9kcTWI+wJB1sBI4XAailO/17zps9hMw0mwfgcjXtF5XjTuRCxvewMAAk/GNK+9/P8cqKpwDs4yV4bmX",
+	"iw3rjJX14zJdVvLzbSciYEBZTuqLc8Ws8h7CmBSc3yDZhQuGrhbyWhTExWjkTQKRQ0OrA5DJqrtkz2Fy",
+	"cdCktu0hQIhCtyBexpuGrpaaLfwQ9hfURQoehXE0FpPvhuyyQJ0pOL/yVCWoGg8jXIUyHLIUNtlYlHk6",
+	"kP58V5eah8RKXA0Jm8lRYcmvV2lmZlOhjcidFzEfyLWa7flheCSHkJ28yMb1LR7NDe5xP3gwnruer72M",
+	"2OKLWoXu4Ulcr3v2TageV7Cx5zYjHoUczswKLwg6Ing8YD2lulwSiMPPh0ZkSuZLvE9GXNOGYGdiXARk",
+	"3QLYdXRK9MEI3FjyNaw75c7kG6kul+D9rRR+K4iLRcyKwrJzYUkBjSPtzCSGmcKMJ0AtqvzSqBAlJNpA",
+	"KRNC7efdJUIXrk2LYdJFJwLB2d72NHgbCeVMl+7i3K0JRy52el1QFd924pe4/fiTxvdrHxSwITNGbuDc",
+	"SYWwnNKaA3b13/9DH2YSVVxwAovo9Lo0t90YDgr+jjU87J9/dAdyIPlEzaSFJ7mes5HmzpuB0HItpcsg",
+	"jbYXTaH+hGlSYCc+JKRciD8dyKoMfNRw2TdJjVsJvInHhX58Shs1YDR7MjWQPvbbGzdCM5Tom9BQG3GF",
+	"C9wtzzIt8sLi+wQ6C4osRN6CpOTPX7jU+oU2YPWNxgi0zwFViUsTQHyA6WvP7GiXISTfzKhIvvPDpXhs",
+	"tHYItDQK/uPrIU00Az7WKBWU2y0AgdB43f63AfFc6jOspvGV/s//ZSvZ+ucfW733lkPW+SO5qfjlHLl8",
+	"XIGzKarpWlhcQaBa3ybaIog0aw3bf6Nl08FSuc7HVUDtOl+7XMQLs27FVftyLF2nq/6abV71h+uZhq/6",
+	"W9XX1R5tnqu2UxQmLay7nxc3NDf0xSVpizOJNsM15uXYm2ERd6zyTQlAYh3nOhkcxchwRCJfprSmrnQ3",
+	"SYZehx3bXny3sCQnsXmkCe1a2dU8iME7JcILU7SZcwl2clbahxdC2lt0FtkEjzDjrSxiqmeyRx76mLCY",
+	"/F56PEfrNmFrO+zb8DtmwlOUSul5AFdst56uEfd6fQTkhu4oC9AgOFKHzW/FMBuDjmN9Hj+s4nGoKHqI",
+	"EtixrxLx8cVFARZ+42WzdfE5IoluSaIpeOdkH6dAQUQYN8K0JXHLNaCLJDGFnq7fP0+w3LqEZS2k/XQ/",
+	"Pun3+/3Pdu/f37u3/9l+//793ess2xuizeLeHS5xKTDiu9UsPCqoBITcFxImETNtgYqEGC9x0Yy3f+fh",
+	"rXeTQMddVh0HgkJHublkC7stRrwM6xNPUwRsu9KTqXZul9wcs9I+EiL/AAl7cCE25WyI8r6XfD2rvVVb",
+	"vVIxahWPrKr23fVZ2dzIb5rip8njbbhUTkEZ+5t+eo1dDHNz5KZRLDYJLhkpNuZLt4/FZ0fdUNh1QR+5",
+	"SwaUsGnAB85EUzsFn7bBA6wRLesKQyYjDJxtj47d4P72PV4vI+wD//UK1cmzWqKvenDqNfC9jeUKfYtI",
+	"zjWouo1uRle00zQGxPy172ao8CgUpt8nroq31YObODHfxuS/KzRrBBRrFXOz1Ah08yBrkLkAtKNpb/la",
+	"ta7KrBRfF6qsks9tQCDcFWJWpFoy4HUBGb6cOqloTde7zmW/KJ3iGFpyw5dGBCK8u71n2CXXEhNnw9YO",
+	"r6gCUu20a0e9vHmND7vVqoR53AQ4MshzOIhQLokmtX255Mbgo3om4X4ylvKh3k7Kh43QA6bKWJGzJemN",
+	"b6Sruj7Qn4JAL2sjX1Nw2ixB4MlMol972yb1DS5x0rdwD0GZWn/9dMk4Wv9viMhm5mJd8jiDtKETbsG5",
+	"Yyupfh+ffo3k8abJLdb3Y6z8cjcts0E6DLU00OYdrrvNo1FOZlEYSou9kDxcfdjxEpK5EJ5swsaAdc2b",
+	"gCdkMF/f+boWR73WsHwS9muD5zfLllHLbBFWMJyXVgiBuPvV+iRVHszVvPBMegn+Q6YYXVSr4Ts2FbrC",
+	"zEzendCse5jbVm39CfSpd983vOZ7TjizacTRavS5hUwuS2bvpuARN7iePyTBjunvqlIhIPJdiGuAxWjq",
+	"YhcoHUz2GiGIULP7NNS9DrU+Rsc1x+osJ9t3THjpsrhPeC4GEg3FGE6zc7G74z/ZDuW7PfYQPOECxi4P",
+	"dd8xlZ0SjeAB35mloS0IO4Idkh44ZZYvTbE9jWeUTRcE4ylHVGboHWjCCskIam9a6DnjdiDTaD+mZKMN",
+	"xZxbBpRwsQBYUORkJMU+YsRSlZprJkthzCKGUWEryKJ6gNEGmznKAtLYIKjp+m4m3HunK12BMgKEW0gI",
+	"bo8IN44e4yvXJuH+Om3Zx/c2i1cNV+2Ki7Ua0FKSFAIp3/ONuGnIZhxk1ir9baAoXhC9nAp0zSDMirO7",
+	"PTtOvjRb1+4yjnWdPAz5EkV/ZC8Ls79GfdczfG0YrNHoVk7nO0L/v19Q21zPh95ppSWlmp4DrbZCR54t",
+	"1juMUFbpXM+3XQYaREO8aa60tWKEyP/m1kOPqNpgAF951OCbG8S6vXsSgmQZYrbkZbh971TByXCdopu5",
+	"MxEHPyfUS8HbNPQobUvW5G4qym3P5WJjQcUUo+LfJKgv2G7Im6ol5AWfg13eoHuSj7QrJEtrRXEN0y56",
+	"0xPabhSnl8arnR5SvimlmRSFHZOq7pa21WKf1ttX74L/vMDi3cCGgJxc4ZOWmHafAmLZQsoOul7QdVLz",
+	"7I2wwCLNPTxV3bPVsM7j4693jo+/ZsGB2zFg9/s//+1/3t3ts98k4Ge24znbKgyie0h7k0P+BvSRNYnn",
+	"8ag3zBTe2IGOmgEiC9nGgsye4JtaIa2QGvuwSiuCb6QaSDUVoE2tOQSjt26HcGNhEUthRdpFb7lSYVNK",
+	"iqTWklUKku9Cl7GrA7nbd21RRAgPZeEbrh0HCSiwmZpMlGRTpL0ZqXQfvjhie/1+7/NtVKjRITVdYng5",
+	"RktlYxbFywOZdnQAFgpi6Pzcpm3udn5cLYomVe0NdlmgYb4s1SViuswkDEPkfhfQDGDyMuCUvf9FqwK6",
+	"2nFrM06NzDo1FnNvQ0yUMOJaT9rOWI1du1l2rLZkI5Wtg9LUX743PfZmSY1X42octUbT133hz/mFQK96",
+	"dMUlYAWMdb8xGMZNMi3HzjXrXbzEUbfeuR5vrxkglyFmk1aT3mrO9+Ui9Mg75apdk2leggryEv3cQ6IM",
+	"/Ap5gxfPT1+i1I7tmp3vi/ztTvWlSZOAn+HxNDrVumdqVlKW6jPhAPoRYXIRbQPQQcaCCXleYBLQUQRX",
+	"Ta5thyxtAB6EsIf5DXE52sznjjgWOfr7k7YBQUlGQnguqLhlR5nWjHIryZ7LzHd7UCK3jgVyXU6nOH7l",
+	"fThs0YG5vlwcW3B70uOt+3atpd7zjN+JyBQZMRaxU24CsR+7El5jhKR1cN57ilLo0CL7oBmsZX3zpOea",
+	"6w2+On71FMNpvVLSXWB3TIMcU5QFIeCntVfoDlqbHpcWKWAJIRdWyOsdl27md1bXXsUahfXgXzYBlmme",
+	"+Bhqpu5k1ziZLau/NuJ1zCb9OWrdVh3KVjy9jRRt1Lq5mZ1kU5NCM73TewMPPM3UVNRCRWfSHFRBtjg1",
+	"B7DBgynugHzJtpItnk8KuabBHxs6mUnjA3DpATVwQvXjI7SGmRPfBj47ooagv3WSubG3iecXpiXHpGxE",
+	"8MgU4qpuidunJJE3DulZkcs2TqvY5nBcru+tE6paiT/RPDQotb6PkS25G70H/OJMrEipe80sbZpwt+06",
+	"WMztGBLd1urfbHJJRbDC0dtdh7U4YlcKXzix/JD1614Vi7MgVROH/1qu2ulKNuyeK7Vh965bwqV8ZeAn",
+	"22OkQ1i0ZyKRNXq9QSrPBe90Py3V+vnZDcclqWhCK1WtMga1ii3/8nd+ZinVUudkr+vCQ9mT5w/Y76q8",
+	"TsjjPHn+FftdlXkJkB0hqGlo8vQAqzl9UDn6VvgtLgssQnyzDqIpWvDLHEifRb8C0xgh8EVKmBou5ztW",
+	"b3Z+/vv/SlnbfOUusfpA0teLSBuJ71QNppoVE5eYmPLsCogFG0irmmmOfHA2lRR5F4EA6HU15qhAMpDV",
+	"LFTdVCPkJ10PDl1iJhJ4vXbygFVzGWEC6JnEONtmjnzgkTGrPxaK4rhECfO6MH/18H5oH/aOa5BSbMff",
+	"053rB7ru1Rp22xHVXz34Alo6zWvPnmCTlHew/ubENX1K0UKnkXR7W3DCN8g1GNJxfiDTYcX4U8uLnPtq",
+	"jX7div4BLIgLk3qNR3D08f9HTFxJ0FApoD2XhSGrV9haHxT98rY22FPnIbOxz9Ym3tEaGe3l/tGrT3u+",
+	"7AWhyW4WqH8THbK4mnJEHJ7JTGjLC2nnazZH7kFmo+Y8d7uOl41fvr+CMivpXKnaw8SnFUbqJmjjNVzV",
+	"FrbQu0xtNPJQCDiKZQpCDMtuLkV9G846qCvv7uA/FX8CRYgHFQErIxr/uvkfZ6iybzeqBJTXNTfI7cMs",
+	"uDgzJ4AsaKCo3iUzSdskGmJtB9c3y/oqoba9WgOWGgktZCaCNyL0wKrszdCoSvPFMaEL4QDgLl8Ts8vV",
+	"eeJb2UrCs1NoJPr9hOpt6fNNUrjFrpUbuc75Rq9P5xaaWGfeb+idW9Hm9W71+KpbuNZP/D3s3CL9iQcr",
+	"vP+78tq0zlPSe1veMb34StiEu1m4K27J3WPZ3dBiPKyIzx3DfDkWlWOvXB6YRndvAC31i907t7BHcLKq",
+	"0+7yeyBGctgZhWGdBYqASey6vei2iyJ091oidG/t9osdEN7XXbj+bo8vqGtnoHZhXbdraxjmPEEAFcFz",
+	"YPle4Y365gZ71V+Ba5rn4ev3RFiWpCBvzAMZ4g8r/FYH89ts5dacylZe8NFJb7sEXjrcoEYEqRaCWXFF",
+	"fSew8UOH/GW1KsFkp3lmhQ5Z6C0/S1hZSGcUh8XOuNYFPxdMCzvTspG5KbjiLEnd9O1gcNXvb8N/P4f/",
+	"fAH/OYb/PISHu48Gg6vPHi3JPfUShIsbRjvdQAJY36i7FHnLgA1iA14APm9jrFGsWhJbJzItbI+djtWl",
+	"ZKgfA5nwkBWWZVw6lwxEIUX3ozWNnNRi4vG73EBq7F/rzoNiN+M5/CTewmUCqcgwWT+35Lc2M6ISTw+Z",
+	"wblyXh/kkeMUCXyWF5ZZzYuy9y4LWN0N+6sMbm0BG+0Aaq4jrXOuhbxNVdsZNwLO/LXZbKHdL/zHN4x4",
+	"rod0LQqwqNpeM1j9CX0cmzRa8jBYxQAeH1Z8Usg86HyR17AwJoB7jmwFzE9I4mP/gV+DO4DTrdDdLFo1",
+	"QMOvNcEvwtceAH/97UgVQJlWoqJnMvO0tEFY9ExUWrPLQubqkqF764QQarlku0m/3/czAjcDZhOG71WZ",
+	"C2PdBxgdBnPc7gp64UEaNomai7Edro3nqMURBcG4WoQwq9HODxuv1sF4yiLDzirbf/2MvAMOxTthSkxg",
+	"sm/mErTE7GZaNs2p88n2qtRcXBTEzHckpivdXQaQHk7YDX1EjXBZZZfnyvIthCMs0PFaGbHGjYjzh4OG",
+	"CYnBLOK2l67/i/jAO/MRNFbCZbHc5TRsUcYdXSL3axPjJ/hKYG008GwNQ1CypYcGcg4LMhqtaxqqd/zU",
+	"tVJ/+jhqs/4msgctvDoNvam/eKLIeBQRrQ8QUrwpDp8Ait9OND1ItXXJTNwmCyUII6sw3jl6FBBdPHx4",
+	"TE0nBcUy4Memu8yRfhjf1osf3CyOfLlEFPbkHeMlouVZFCUmbnbg5qPCJnDUw0a9qUP45nk163dMe+YZ",
+	"nzC6+tYj/ERrtnY8bAM9Z3U0QuQ5WHMU9ErbgJtfReRXu7C+B2pjbaNHuI3jwzGbFflWXUbrb9/n26Oj",
+	"7Uevv//87Xb8c3+Tn7t77Xl4X7X6eR4x9PREq3um8pDSaHK+8wQcOGfu3z9Mp5PXzXzBd/dWyZz/v+3/",
+	"/+vvd5O7S/rzNdcFl5kIqeM3STCCmScoYza5Lly42thoJrPYEybYME8fHDAQ45lLHZ4MpOlcdcHjv//T",
+	"jxN+1blK2NVwUsjut9ku6QbxJ1ZjJrwsa64T5G0/kDVT4KFrwqXmNnnKOo64qBEp2nZ2e/1evxs3z37L",
+	"Mshv3xomtC6ycLa75odLHLoax8NDRQIMcbbbuqm/rihCAxMWocNcFJmcRwH6FCHmSJMz+S6NZIjv2yk3",
+	"BmGQi3VtEa53L6ig+/UIy1Pfg4PUh7jvlkcG3cTD4l2Dc9a5cVd4ClLufrQitea3+s0DdH7q//RjZ6Rm",
+	"Mkcu1Pk2dXfcHze8hrDC65IPhyRa6yYbrujEDbu1OaLwNZdo2J1rWJtBZmpfCbhmf/jNgx8YBw6WIkbj",
+	"HAzOMcMDK61plF3l+Xm9b+e1c3lrISIVet4Cx+jyveDUVaGvmErBuOiytfR1ERfhKOb1LiJ+Ey86qtbP",
+	"VbyykXerO5gRyF+df1nTUhzvsQ8HZeUc1ANudqvgOIFLw33pA1oakS9nAkGM4VYlP5cWlX4kN180yP26",
+	"h29h0WsVLQ7nGrXEwrlevDoLWdgCYmMggpti+TIlbSFnhTxPWecYnsYWu7hH8Y3pKqKd6Mqvf3WGKh+H",
+	"amobJqqyMa4bWO9vspHiYa+vqamv7TUSQr2JDZb2VqC5lgSABTUPBC9PBDezzcAoV8caP3MOyI2E3pRj",
+	"k/WD418VDQaSw02xSJYkbeivYFpvfGt+UIfBde4A7zMUrXrbvvoGXaGPucyL3KcA2GBPAeqVWBKLi+MQ",
+	"3sk6GytlliEHkMZuZTU+P+PMiCU65wm/cn7T5N89NGOulyg8Sq7PhbEMP6m8HC1k3cfCLqsneCIQ+sFM",
+	"5qgEKgzL/GzF7J+L95fKRuLFTTSzyor2NGK8ahibMm+K6ZTkHLq8MYvYIROTqZ3Hjq0t59TMJkN+ZoZt",
+	"8/On//bDb04e/uBnBfjc7YyXGaSFEnmgEGaB+W3r3Q1nIcQIXHdIvgkfNg9JVUVtuEv3SdiFSdjWbjWW",
+	"n5vWYJknghu7TdpZ47aT6YE+4erbfu9eyn7+2/8Nfs2/3Uvd65r7MzDRfCBRjUAMSDMoFnWLTu/QOSon",
+	"osg5E5bxspewv+wN5PFYqwm36lz32Bfss8/2WWev39/rsr3de92eV234vkGDuzugLvjpH8nBEjIZLmg8",
+	"InXGFagwaJsznmllDJ0Vw6xipTrv4K+BPH3QDegY8Lg2jG7iMg3AeKn8HcPAhHv64NCl8eMDWW0rNfLE",
+	"BG1SuPEINyZoTdyJ5TFIH0AQpmE3DBWuk+k1Aznc7Jueb8RRLIpsiTa3x5wJOhszm0Df+Bm6OArm3TEZ",
+	"pXd3B2kgl54kxicKTZXKYAwihTtLVSNAE6UFhLVwyca8HLURrR57iNNBYiiFPxmQzaqzaTDtqpuOYfUY",
+	"cCBKoxZ86kfFFfp6mypsB8KNcHMO1Wg4EVymrAMLQEopNlE5bAT03zpgX3PdmcO2+Ze/++kff/rxh//7",
+	"xx++7ez96Z+6CfvTP9G0oK0DhlNK2jcMto2SrJTweZUb0bOlMKewCgNZrV/CCis0Tiu8Ypz5YCGmBdwb",
+	"EaqFn5g//RNhX4zVpSffIa0yYlJJJWlQabfHICf/4jDdURpIf5bwJFc9hc1dWNrWfoufPqhHAUmFOl5H",
+	"H+gv93sP/52H53P3m54b/NcFEdWWZE1OPFCxZ9SF8PuxvDj9Ttu/bjxb+L3XUujfNZ4t/F4oVHvgYpbC",
+	"7xcwruejpziqmPI+nwbmfKOYX08Vqh3NHE1IHDnx4vqoKMs28B6Smw3ESV3rOlJF/r1Ntuo0p80G2zRR",
+	"1gsktaZX3ktudm6CIbZqisAHDxPxN1OewyZfmuj8Fies4fwmMOAwBDm2XgdSiNxQ9il38VkFauAll0uH",
+	"y9z5ARL186Wksq4kgC+cixy07Pgx9aIeAsjSaNQHjOqu0sPjx0gMCF+3xx64XXf3gHG4A12sw6WqqoSL",
+	"TUnBcnGuBfQZygqRAzwvLMD9e+w3lBadmSmXBoZAjlB4P8FqfdZ3YDs1OSkSj/Zas742Nhpa57OZLuz8",
+	"FBbO57PnWuijmR23aB7gsdLFH/HuP2Bf4Lck+mXowIV/irTH0N3KHLC0wh4AG1EMPgDmlbQGPwBfIP5A",
+	"esiMEESHCe25UBDOn15t+5O1TW5XLhiTBAyQJbBLFbs8tna69fYtGmRHanFI2D44HQlNOF+mloVwJvHq",
+	"r7Kt1vQq4fJPgJEyA8lrrxdw1xMybhDYcJVdtjqqlOeey0wA71gW2ZwAj42AWfLyU0LsJFaVsGmprEkc",
+	"UlWMIGVwb7l0yCZhXx35zERQJZc1j7qBHMhPPnkY5X/1wE7cEh/X++QTdhT6x0CGcmkm65lyfV50kbMM",
+	"ll0X3IO/cB1idA3LNb+UdD6ms7OyMGORs/NZkXP0kcS6VmS5dag2caJbeOJYHsh5C+d0IKdaZCIXWKfX",
+	"F0ohcj8XyLguJMR1wNJOoUg4iwNJC+oQqN0sV1y8FlPBER27MMh6eGVQirP7F3/BjpW8EBKfDeQ2gzQZ",
+	"jhC7sEctmJH8jRhm2OrLwj89eXTM7t69e591UpLEDljQ4aRAwhjj5SUumC6sFZht7tXLY2KkxBXPbDln",
+	"prgK6LG8ZHlxjruWsU6619/7dLt/d7u/97L/+UG/f9Dv90jr8u/T7gF7oYw91+L0qyf+lEyKTCuXyDth",
+	"RkE1RLnxg5wS7xQOThi6MwJJkzu3PoMyaegZRzJXlFboHkxNpW7B8+erHCMF7cCx9B5/CXmOAuyiFgws",
+	"KIy4JdNjJ+oSi8Nen06FzLdR6PCgIOACQVsCThll38Mzw0LCNKqVZFoyjTiCalha5OkO4DemFFQJRXyC",
+	"bujw1CB8OWN73967y7bZLsySm6KsLIS0CftLfsFPkRqxQlL0fuKmx47FxE8PTgkAgsM2QYJS5IIfgF8E",
+	"gapyXHac7hTvijQAdFKsZ4RjCF2C7yobgP/YKDg9wCjEikNXaYXB7quWbskBDZa745RUdAXBy/F3yNmZ",
+	"wCILkVOpLhvjqlRd4jbFoT7D+aadPyokjOzxw4cPtz+7t89I/2B6dHqcG3XGtZ6zZ/wZwl1JLDM/xFPh",
+	"XHpwiXIlSLsjrgqDvSZjM76sWZc9aUuAwWB1/QlBbno3U62U7WLvQSGSenmYMwM7WIoSR+TUvYzuXuNC",
+	"l32ueiIChnXSNg7vgCGHl8Kdz9hJCLh2VcEkObxPDsxeWeJGQ7mSJFuYv4zbbIz+S3Nqze9yvFo09DY3",
+	"fiMXhuUqoyswzBndm2fi0O1ew8xYzagiY8GVuziXSgs/GDsWc5YrLAujTBwkLMjNmjlYRcN4nrsStPRI",
+	"CNUouoVN4u9Pkzj6bhKvq8Db0UO4gnDNWFHRjgO2y6xin+6zo9Pjx49ZKawV2iSO9GHptAdsxxD+cwD/",
+	"2U4TGhKnROxOFKWisL+wLOsQs8vSilSBhPlKFgiJBjW74A2oLYrf4DpgK/p7AewhZiCPWFkY63Yjl+xc",
+	"q8uw087QSt5Jf/8wxoKEDvsn7nZLu5jxANcVRWBICAlzCCskGaG8zw9gsjXtygPH5qasA98yU/xRHBLz",
+	"hR1Cc1pNOnBwzsh8dvGYwUT6dJQdF8eLiUKxeWDdooSSacgq5E3rmJoeKoKvu0mkoEEoT7wYjA8LwI8p",
+	"zyWNgk4EIYigjSepN1ct1jNxZY/pYZc67TNbpngP+u9cKk5Y0b8SYupnKuwHN9bf1Vq5HBcl7sCqUoaO",
+	"6zMBuMM4l7SbJENf9jRayC4dQSwe1XqAClrQluH8OyxlyPDpSGknra29YwNwB7sjjSoTAxOt2FSVJfFc",
+	"0AaeuCP/ujBMTfl34P9Y+bemL/i58DN2iLvHjt32KjLB8gJpJlFwMxMIy4x/kfyFKmy/gAjHvN/v477H",
+	"TU/bOjgdFNrn8ehwh+CFMlwD4Rp2s/dPaKJaI29bMbZJxGCbLhrv4dosRRJOFp4P7NJXM7icw+Chskr8",
+	"iClhVsIpjk4yret+vw9XNGJt4/HppN9BlQckIcHt7QSkoDclmhkoAQhYQlo3GqJuKOcMJPHmsNop02pm",
+	"hZOJNxDKjhwIBAaKCRRDB9KD31A7B9CRH+gH+wGX8Ad2rrm0hv0wkD9sb2+H/8OHsXzHfoipNvsB08qR",
+	"DAUDIcLviDWxOfQSbteEPo7XMtKteqjyLnONxmIk+4E9efz0lDgz7bbBD1S/5xGdkBQJR4nrSbWlbMCe",
+	"xZOVxJlaJcxEJlzzdaGV/QCilbF8NGpttrklzWHIrBkcjA+ZQ2+KTTOOdavvb+oBScnsB4Z/FMY6leoP",
+	"xGAiFwfNz7xERL0gVhnqGMiHNeEaqRNRC9oIdA1B9ST/kUZZXFkh4eIeyBZZ/IBxt8NA3Q3E8pNPgOFQ",
+	"UnzyiVN2T9AkkE/IvuZHglcWdEHkEIpdFllhyTyg6ZhYB8xsAnMDX3sptBRWYMqfgXw+FfLoxWPmVRse",
+	"amZCzD3j7ghVIwferdJ6HLA/vAYkZF/P3V6fPKOMOxQ0UShIwOl4DoX2cHahyOMHIOVJkVln9DTAth15",
+	"n/GETXgJEhzsL8/94S64UIAzT7OHVHL3kJjXwj919Aq0DG6mqEP49d0eS3fGgpd2/EdgCnZgH87pz4mw",
+	"usiMg1bdUVMh+bTozfmkTAcShWGpXCOd1E8cTkTXE6aHaAbxVAiNIriQEkXT+/v3PmNTrc5KMQEudkra",
+	"vkLJHff0t5BNMk1oUvhApi/oudfKF5KGWoCuM2EptmBSJxiTImg0EhJ3FfKLyMFwEgPOVO7YWrhIoEef",
+	"3u/v0juMV4At5EHJ4GPyYcbLNuTCMjt7O3V0WtZJB1uDLbrFx+7iwPLdQ2r9+PRrlomyhGbTnbKQwuw4",
+	"Yo//CPcrg0QXnhADd5K6XLEgLeZsOp6bIuMlBfR2UPfB2FjwXOA04+Pdrve8dg19tuNZn9R1p7q3oT/U",
+	"dOGaXbyEfHV0RxELmLB0yu34oMiJDU6pEwePczGZKitkNt/+KzFHJo/M6E5imhSGMn2Q1jWeeqyINECF",
+	"8aZtTRy2y3+f7rit9tQfD2bm0vKrhF1qtKvNpy76wrFoUTQA1wKu3kPaPES4CgPmnLLcdrWdAQutBX9j",
+	"GMeogpBJzTEyHS69mBHbzvylP5Bw5hJKr0DHlr4AVkQL5AGKao7YGzFHqXB/bw/u3Xv9PunTgG4M5CDA",
+	"jdNRGmwF/JvUsZrDIk8PnclsZgQ7h45YFfosNFhjewP5TJHMXngBv5L8sSJ4EcsbQcdHYqTnBdK/3nZC",
+	"6vZjcEnnLJ4+JQUKtME5FEVApNpvMGDEa7jQya1U5wP0/wKZx3nnoVC329vt9VkHF6KQ5xTijlWxXEwF",
+	"coJKOgo9F7aLh3xBwiFOH2WViFNF8TKlsLXLII0ghLySlXoKiuVIQXusKU0xLs0lKncCB4888i0whihe",
+	"oEyMoUeO7+ti9bQkXmG2sQYP7AZILzgQckk8OOXZkYUU1EbQ95zNqzkiXZFXqAVOqMZxRDL3YtbBrley",
+	"RCXukCaHdfwGJJ0f7bdu1HalUnI6Espe43gVlG48pCcd8khY8Eo11kHpNCcrMGNCIqMWvJi9Rs5NAhgB",
+	"emWRCSCa0JWjKc/GYnuv1w+5BrTAVknp/OTx8cNnpw/JyuAKViHxW1VxCBjXpbM4mIOdncvLyx7H1z2l",
+	"z3dcWbPjasQyYJQpbCnqhgiKJzIuO1tvlz501/bWwdbdXr93lyKDxmiz8Rc//H0u2kJ43Lbeg6hfkFLp",
+	"AGmVCWPwHi+LC9Fjz1Ci8MxAL2TKBSfPfOtg6/fCfumaajjB7fUxCMVlmIY/YybgbxwQLNHu68yH1ARZ",
+	"bRrjwG7CbNzr95dVE/pF+RYkL5F5qRm8tg7+8BpdiiZcz8HfB5TUAsNALCbn+EM1crP1Gop6NmrpJL/Q",
+	"qD8VM0NQHuLK715GOvvm/B7SJ4IVlvhJJUHdKIW9VPoNLpFPdYpaBGNpGy6syVPXs2vXBPq1My150ViN",
+	"phf7wsS7Ft7H1EfTNgnjWLoIMfO6dCXAO9Dz70GRGV2coN4+mxUg6KHVdo1t76rbbNv7Tm4w0XHXQfTw",
+	"3U/Yvzt6+uR9zP/LWN27aupJoliTxghZI7/hYvV2OsfFAQs50xoHeK9/dyArl8fmqrB0onIi2il0BW05",
+	"aUTOQlsFWmLxskKDTUhwduBsK1y7rZB7bxEyn/hOYk866Ymwer6NuZXSLptJW5SVfzXUbICEThTaCYi/",
+	"jTjKgZTKFpkwzn1IlKMe9By3h0kjgZs0Ie5FwgowWM0T5x5FWrGSny85+ye0Ku+RHJ+g54Iwpm2/YvPM",
+	"KprPG+9PKHX3+lKnNLWvJL/gBXmfrtraVc9XbOvA/S3d2Z98gt4MB5980nRgWFAFKe01GsgRU94DJsm3",
+	"BPXWCSHiEodSY4LQwuIkXCcNSHY2H0iwNEYve+yR04dnanJWSOfOePTswSFLgaDhGSmkc7Ynqd+q1CGE",
+	"w7PEJVyUDTaMgbbXODCDSsuSBbs15g0D+YVMFlteLxRNGAlWEU3pHqBvM2uxCgxkrOtOGTeVFaHVBHBI",
+	"kfqiUoQPZF3bTqH7OOZa1aBG71XKbjSbYhNIcQbSNVBpqBcOGwz52Ceur2QBxEOCC3UL5WgPzHRQhzdZ",
+	"76jFUQZvk/ZqK6CU26szZKS5vSpDaPx6VdZwDpbVGeW9X6vSKJ1+80w/5LoshLGskV48HBsEFGjpAxyw",
+	"WgfWCapZbB+SwSy2Lq6uad2qW2j7hTfyLWsFVUG1hgI0CiQ2D15nezWns902p7P2BapOz05lX0K0sPd2",
+	"i+EGgyPcdouBbwWqE9TI6e7xJttf5yb7guc+mAuL7F5f5JXkzmYjciq0xt33SOmzIs8Fxsns792/vsRL",
+	"pZ5yOXe9M7/Q3Rxu42MKrC4MiNbRjexu39fg3dywKGwhHPE6+YrqVzmmSHwP9znGMpGSbVTYHntMHufB",
+	"EU7JTETGa5dJEU5VTj779GToxHtK3IgaEbRyaOFrWsLs4RQu3j7XHDEs5ZJovt/ztUyiwVn9tR+p/v71",
+	"JZ4p+wgDs/9Mz+CRT28LW7SwhtxJnVcqGmk9uNr7Pp07aBFd64yuPpNen+1SGpBDGvlJVwZcL3bqmUw8",
+	"CB6y485qGJlnUR1WeQuuOolHOIRf5XHErj1RS3UMOE3m45H8FRzJaOuhfTpzRN6fQHeYlp3ADY5ccMTE",
+	"7TZV5p0OHiFCGMZBvqVeJxSoFSK4IkOaxw8JkXRKF+cYSO79cOzYX5VVBqaykGQWZwXanlJfzVCNwOhp",
+	"McOMqyjcox4PAs2FFsxuhfSMR4+duNob3Qjps6BE+AUiI4JQehdtF4/SEY7sYF0DiTGeiMWgpAhqHgup",
+	"mJ2RN2lN4d91BChMj7OKplMS9odu8g9ZLbu+R65CFyknEQ7kubCGeZ/m4JVf2CRYF/1oK1cqVIaFFPnc",
+	"DKSZTYU2AgdP+Zhd18A6YZrV1Dx23BwfgP7NITjV3pOfaJWOvnK5McxLQj7zth1IUrlxVB+4jP4BaJE9",
+	"95imToHoKD0doTEvJPpQnrn+g6fcfv9+MpBo/E0dKIsZutLO/HyCeHOd/b29hJwOXBJ/z8JVjgnhBoX6",
+	"DkNYw0BS9yEH3NPdPsTs7u11E6eziKIZIELBQcnAPeQsnWhZHrpdlR5QH2jHoc8yXdL4NGwx2PcwMy7M",
+	"OOTqxgrdPjbD4Nw9lOISPHUsKwU3FCTvyjjfaHcOeAmP51QPBFz7N0NvgaRqJspYtgdRS2pU6Ue5rs4x",
+	"GuZ8tXAKSjhA9UH4LmRqJq1hLkjKV9V1vShcagEzBLNzPIxaHE30YUrTR2EObpXAjJr4Jerivq4yzFFL",
+	"oB8bYhTWUMjcDKUQucvHmx64wUB3a2QAJgAKMufA4VLp+cM3Ls7H8JvWU3Kt1aU7A9AQjAVLQ4OH6MYA",
+	"lTgvP+qL60GC/uWY9cCh3Xj3psvxnPxvz4UUmqPzcepKVYZqnORuG2tDRP2hvyjekbnBG/YLlc9vja8J",
+	"PQvcSD3cEnG6F/iq3Q8j5sQYWeQ3g+0/UdkSLJUX3I4DLXeFE5Y27m3EVKwPMVllU/pXxtP11+DpjpUc",
+	"lQ5TdH93jT694PNS8fylUk+4PhdU7t46EwDZPJS2In8q8oK/nBOq/P7e3jqFnckd2MCH0oLJ4s+Ua33Y",
+	"dFd1Xh4oT3LPFPo9HXGz32W3wcmCY21vKs/Xkh9voOPBOKtSWbRIYGPm4jx1I3vx7PesmPBzsUo2fFEq",
+	"++LZ79+ndIh92HGz0KIUPiskJ03bOlZnHOVHefAXP1mwcSJBMGG0i967Psbv8vdwpE4rR/7ABoZ4+AnX",
+	"byAM30c3B7DtxKPmjAqM3wXwFZmTLMOrTMFTLkXJzkSpLklewWMR/Bo5OeOgm9VAUnSGrz+EZUch31C7",
+	"szNdd7xPv/4Ax9tcnP/26kZuJB8P9K/0QJ9+/WEOdBXssp66p3aom2f48QK+AIyJvEwBfaKKwoyADdyA",
+	"UdQjdxZeSYcURECnuTrlhEJ/wUvGLUur52klvaF05WW9bo8teED32Itq7BQg24Qq4HLu4/nRX3zsItBt",
+	"gpAHLugEKgSTNEyGIwqHNSjggXTBkSC4EWlKAVjEpODu7T2xKQQZ06SrmTVFLmpYSCIfSJIAlSZCxjgp",
+	"4nssVthTwDECIVUAEK4d9DYfyP3+/eVSXTQpvzq5rurbRoJd/710gJpYZih26rVpCGZLyMfMRXjrXOje",
+	"1kcZ7KMM9t4N6nGwEsZXeLCX6HqJb4E175gVd4q7d27BevBUYToVR94wJLmp82ZWsdSFSroLyadjScnf",
+	"n6x+xrmgZU5/QuouJ5BCTaI1iRw7wqpRfe/74TKNEKlHV1PKU0BKOF6p0kBFHIiygiALdlS7UCh7Uqnk",
+	"udCLI0Mvs/sHzONmwIMRQt4P5AlmbzSx9RIRg6S6pMvTtJH4E6znNhwEbp+4U99+IcK+VGNHvRL5R2L9",
+	"kVh/ADNvM+T7vVp6F6DPb1miJ6eLuJXKA6NFAEBXZ5su86r9uoGi/iv0p1iAr18idNcm/qP0/cufu6/b",
+	"ESVaPS1W6KbXFMOTdcTsGiLi8nPGHkdgGlBtHeokGowLXDzjNhtToDB46scNdQ8DRsVATrj3l0IbawD6",
+	"OpuzMUdcmnqnnGncw5KFhgnCjRAuA6/SmQiOqoE0LBKAYqmBzIsS8fC6DhxpMuVaIGfjIHVqsfcHIWpn",
+	"IDFPECZE8ZmBsIrfPLg+gxC4aCKyukFhfCAx1c3P//F/aRiMK+TFXjzJw5BhHVKspAkxiAPpVRE//cNe",
+	"n/3GOyWwV6fs4YsjdvrN9uf7n7KnWDv7vN/vP4iBIevreLjoG0DdQtBkXeQ4R4l3YRvIGg4iPva+BN6l",
+	"7agK78ap9YmMKHbCs6nA2RLuzVGrs0bdTcOnA6qjpgSvjYHkFjYveT9g/G/Te6NWudLORBTx/xj7eMn0",
+	"TB42nD4cDqNx8NoLriIufzY7kiHIRclgfYocV2rk2VteqQuFpQLCDCQFaqOVHPEMyK+CRmyVIqedWmXJ",
+	"QMJHJF9oRRib3jkAO++8klAdBWOymktDfhTufNUCxu87JKGQs5KUSx6cgUSHODclRKzhH0Op7NC/A6Qh",
+	"L9xUjj1w1GNgvjBVVSWxa0xVRUMN5b6FAJxRAT40gHdwgNDz8WI7NM14G0WOUNBm7czhqg6jA4MoJpx8",
+	"dJbotr6uJ935dck/bYlfPrDfQlsqpzVYmOA4q2YWKMxHWemjrPT+ebYTYk54OxxYhQa2JusW2KDr7ScR",
+	"ftnO99WPt164ciTxPbkdROojPOnk+YqohnUDpQeq4ZauWm8aGUipLrsHIReFCGmLw41pyciABBnLUnM6",
+	"+FEOZEcqu85lQYwcfOxvGzLiUrjrQHo9mFfhJZTOk1uf6yayYuCoLjldtDBBPiOP8aYeZkTsF0sDGxZy",
+	"iIAfiG4nUdVnZtm4eeOZgaTLWJW50ExJ0WPfNNJkUP3g6Ei3Gj8Xw7GaaQecFXFOhXH1YCYPmkBaiYRy",
+	"KxMANHasx/b7+x5LGx1WtUDcHEJqKSS7VDo3q2zNj+UjRVn8NrvWKvlh6/pg0uX+ZZtEgi7eJhNF8AUe",
+	"wfoQ9ZhkGEMM0GVBiNxuHur43gOc/FKsinOqlv6j+P+LXyWLqwJHlbtteauy/3VXyO3a448MS188P33J",
+	"mqq/qJk0IcEoVsZV8zBSmgIoGpdL6ohCunC9wNHFzAwDGZCz1rwx064DbsTZB7zOgDyI9pjsje9eblot",
+	"+s9Us/9oQ9kfyBBpQraZ5TJCRQ/fxRIeU9X3JC+0dfSjWfyj9PBReliH5H8148CTzFfQvlu1jzt4vLVk",
+	"ggbDXxIKRBwbR2yqx5Y8m2Po0TLDyVPX9HskANTEKpOHG/9HxITbtxmWZZTwoL5XYh8P983S/buJdSJm",
+	"MVBBC/uPZS7WM+zU3R7mhCGsIopNg7/xY4dxPx/IKls5aXgJwr6+533VJDleRW86e/1dCPwSiNWiq6Fj",
+	"iGYSqVh9TsDKGyRUQkkBB9J5FkPfqq57WE27eBbvGObOD9GRgfQdlY454ehfQr4aoAzd6/dRMayFIbV5",
+	"yK4GOWUiCwOlEIsQIqrs8iYGEgtKfDNWlziEssQAOlB0kwKgyhs0kwVA98P4CgkMLgm14KeyQm361AP/",
+	"vA82hir/hRgXN7IWmkUya8ZLr1xprPxhWGHE9iBlKVK321TILu8fHTu3fkq/W1SZv0jS6Kba+R62zb+2",
+	"sLKPrNiv0EMRD0+gRkll9otZHspbuullVue+3J6+BSbMaSnJSEdx3zHwQLocg5UoaRsyHFjtKs0W/vN+",
+	"NG5HzExFBjrziJxFNG4NvVsUs1f1qIL82t3/bP/zu5/uf3YN8tfrX4S2V/zoR+XbL3/8n0u/Gjc/3072",
+	"2tzi0u6yhte5ozsVUkbFSJKNPkApkOUeYzwSBMcg3ByfSIsSd6NuAzNnfAdqrjq8UBNRkxIJNCE12WaI",
+	"moek9QLeMuBl+pSFHkEk+OWcifNCSgQO/UIg44rfJU3wzcK45FHMCMs6aPx12RoQG4+yuUf5pAx0xaXP",
+	"jUA4na1DYOYneOTAhgj43qFKsExNXA6YgXyEswNdq/fICOHTAWMVgV9XMhMHvlpM+xZSNLrpozUh8NzI",
+	"08K4dlEZyWlcsKZ6IJ2XUEgE6a1XoaNIQ3Uv5M6hz+qA/dB01JzP5UbpIewBunHhEgAOCXrB+LApdNfq",
+	"EbcJ1kL3vMdzcPbw6P3ki0Gq5+Cr0fN+Wslyk6n7Mn6bAlzNQLaa9kKB8CruhE/bVsHWxKm5UjwuQzpK",
+	"1cexRVFJyovTqtSgPAAPcXE31s7GcJK3Cny52+8vz7f8oS9AmqJHot2JI0az/PPA+fpzZG3ppkCKq0YN",
+	"t7iaTzc9uZluUc/WNhZFedgWwq+VdgoWIDqdKG11hbTl6A3Z9Efo8iNFlcIa6ASpHBrAXncCgnvEQfvr",
+	"saKEB4yzvf4uGPO5NFGWshqJRdfFmXRhODJKA0vZoSCLj/PApJ5V+Yecfkdp8muE+0sQ0g6lvgxLywRk",
+	"e06YVQqSvg8kfmS6ZGwCfCoyOSU+86fzjYwDhOqhlwdM88uBzLnlFQaZHWt1KcGnYQ6evFF2K9bZv7rq",
+	"UitBmxShT52JuXKIQXTeSYlzEE06m8yMz2JLqI3G0pxW61RBhB16rRBMSYh590hmJT8TJSIecm3wZh3I",
+	"zgIuk2HnilJoRX69tFnspUvSb3y6VzPmmlLzxy69h/6QFHlNZRUlSHdphP6CRemmBvJUAIOxkIHKKjYB",
+	"PZoWFiP9DR8JSNc5p9rxiHkHmoGk9GZ4Hxu63sUEuw9AUpS0ykNJ7e0z9Pvw8GdIcO6gAk6eCz3VBd37",
+	"nJ1+ebS9d+/TgzjpFUFMhsln3LAp18anqBEyUyFKgnWMAoWfxVz/Gfl4TgRse8fBuBmdcGuF7h5SQwMJ",
+	"ecfihr5bTFBEO0jzS8qOdja3glLsnvKJgPxUiUdWD4NKXGpVN+SQWi+nvffJJx73bSBZOFCffEIZpuxM",
+	"y2pce/3dBoI79gJZRa+5conL8bPa8p6Iacnn2KyeiRTTRFGqcZzRyipcH47XNtt4TAeYgiv+MEoZUR9u",
+	"IABgJiqL87Glcbum0TsJOkwewf5Q2WqPYAondI/18P0aR0IO3EozBOjb799HMDIadz3JRAGCR4XTBYms",
+	"zRj6AzW7dK2hMdjLjjgBSYEG7gFlCcVBDY2CzBsxD0cLtk4nxUwwmbmAbMFwrdYyd0JaGm3hyx77Bnt5",
+	"TFzLNiiyDlgoXIEQDqTLVueyP5M7uhdBFrZnSnQMGN2qYcg4V8+I0PEXpkvW69PhpKyjppQDq3vokAXS",
+	"JjuVOm/xqFkkm2fCZx/u7IPK3uuBcIMWhr16+Wj7c0iAVhLpw6OzTccRwErgG5++i/ya9nc/7w9kxw0d",
+	"wivOYMwq4GCmg630kD15BEt0fPLkESX0EzIH+IInhcToBGXchhzIkC4a2kr/IvUYBrQ8MBXwwLwpplOR",
+	"H7Kzkss3WKeJX/RoXLTJKREvtuukOFqwHjvG3IQmGBsJqFLOiQK5hLCUwBDzm9KKsB8q6QL83X8ILJC6",
+	"XMgUG7LFvikkJmydC8hVmvoaUvyB5VOf4dQ7ofiP3YMovfeSh1gcL6SqMP6sFyXJlr5upH30pXywSe11",
+	"wn7+j/8r6zdqCJkYQ2H0Awx729+jK14MZJgESP6H7VetVJdnY6Q+rGahgH/BRpjmLaGUwIL1WYc+IVZs",
+	"t0v5YLfZ8wgJcio0rCSgpTpOwGcun6IMyBC7sEbhEWowLBueV7cKMcdJ5i08iJ5CCm7rldSXo+sVsvC+",
+	"2UI0Xx3620TpJrGZRgvRjHV77ERdupvWpTKE+zpwP1ATvkXSi75kdA7idgtTHQrSr8o5ngJkEehDym3v",
+	"+NmZEZB1HlrKRVZMeEkQswmlFSS6hkRYIpVKd3v3xPZdTBqtKG+/mhkuc+NBIBVkRkmf8WdAUB/LUfBY",
+	"ZWXxppaPkCDMKFF+mBFNCRo56rWAifGJwUVZ0jUTrhQgsnPC4zUwyDuGwZkOlBV3FhWXcYLbfOamNPdT",
+	"SKSG+8y41RzS+wTYHMZ8CnzGo+udBAPgfRzJdX64nqY5OwMQO4LhxCB8/Gi/f/9T4oWivJgO8HXqMsWu",
+	"nciVtkf792k37BmcYwJWhzlGLpHmsQOBaIieE9hsOHiBsBLZAi0NC05VUATSieI7k7BQhZfgPEIWXPR4",
+	"p5E12iG1QlWQtwNKoMSCB5lAWYlNcvlVQWBxWiThpMdQI2arI5Q/JbeJmpCh8DBgn/I5ckJnihymUWSq",
+	"8jK6JFl3DFaai0zhugVNLFThsHdRGetyqfq94Ke81+ulft1IM3eFs3AwkGmaDuRfOF6GGo6o7nSsrEKu",
+	"YHuXddzVuniFdgcStnfipSYSKOv3gSf9SaAJiacwA+mXMpEFfC+SJ7tJv3cv6ff6u/29JFn5Rf/+5+1f",
+	"7CW7vT58sde/1/7F3WSPvtjf3cUvaPf49wkWvtdPvtnu9/f3lnywe/cufXA32XMTusSP4GS2edRVxPH/",
+	"lZi3qOtgZ+BOC2wgXhku+s5JwugetUSd945pjTbpTbS1qht6Wb9uITPUun0LQQ6oVuFVJEjlkb+slxEn",
+	"fgtJh6ouBs4deqfg8mmEuCzrkOf+1560577A2/eGbDKLHHOTLS8Y1StYnAi8+eHhmciJRMKYJ4V8IuS5",
+	"HccK5Rjj78OFC57MrosS1LMqONAHGemQHacD/Kaj1dpJ8wO5oMNJyCbkCrmrISDyuwVzhoLI9aVNV7A4",
+	"0SkqD3wuysJ4uce15ucOLYGSVU5m2GhDeQEC9DreMmdKlYJL3AzrOei4iGfnoaNn8l8l5vNH55xfIS6l",
+	"MpbxcJAhoLs6zLEFY7bKNToOrmwxXmyQiWu5AcPTG2/+5V4BeIA99ky/y5DRyD5Aatdgn6FnNSuxFpko",
+	"MD6xTtCWZVy9Aa9zMpPvG6EGurWcVn90h/k1JN9y9gDavLd6xG7bT4Y+qeeZ8fqV+ulx3g89l7/faRea",
+	"KfE8G+q1WCZY2RajNKJ8eQ6LIk8PnS+HtwnGiX7AHbrNh8FnGqJazwvgUVCidJ3wnoi1bDn1VAwh8Bc0",
+	"6S6yN0qWE/k0BP36Sew0NJAPhAba0oTJ8ZTmq+MktkTMylr8txnIXGQFkKyENeLcMBuN81AKmUkGcrcX",
+	"tXJZ6+LSQO4DlvpBQVKlvbiKTM3KnNWMrI3P7zZbDLgkhXSuKo0S+3EJZ8GAyZgA5bZKz72BlaPZJWie",
+	"MIq8Ude9Xuzf2O79EhCOatHvTlHhdgOBAEW2B+pX3FrShLTB4rUmOwEFeRGiRgsyyoiSkJNQr4lKrgUg",
+	"HM8VLtvZhZsS+A4roMJjoQVciUsAb3x6pibuDdaAdYMfUm2HZEprkVlUZHodAzZdl9juoF2M5boY2a7z",
+	"rfJmc1hJP+WFbU0B5SYN66D5Ir8pKHo4kJ/G26UGEnDAUtgUOCm8hO3wWfxthD3AOkEagZOSkKUtwA9Q",
+	"ZyEJE2P+VAEFr7kOBt9APNqsiJzFAO/KR8Q66poGivAcTS8kNpuBJIvaEYaDHLD4wh+NC/1bb7qqMJbQ",
+	"lobatkdfPj5hJ/tAXstSkItZ+sVM5mA3gT48PzNCX5De3LAOAU+HVFWvjl89ZZnKBamM7CzyEqz5Oh6w",
+	"agrYz//jfyJs0oRFkw2PB3KqBSg2JdcuYT3ubiiRcQnqY2cBI8wg7M4hS3MBF2VKJ7DaRfgGqeUjzGIe",
+	"FrLbY/VJqxkg5wPpZ8gb41Cp6Bbc2SW1uvQcYqXW5gNppnALmrEQll0irYPfNN2wZLOSo/1Co98e1vm7",
+	"hP02YdsJ+7cJs/xsINGqF8AwuLukumyqxai4clMAm4VPlbFaTcfCgXQFOHN3R3G4/hRNFNmZa2FEOCW0",
+	"3pTliXTJ/pKCUUOsEKSia07Z1Xa808blZ9sXe78V+jOaQr/HBvLLJ5+xi73evd4uS5+fvPr2pL+bsokw",
+	"Bv1YC8kennzG0IkBLyUlRRTyyzpPT79MBvL5Fyf06vkXf42vaagHNLCENuJMglWc3jic9YSpagMPpC3A",
+	"ROBjB4AzmqL7K9XtKYUg26aDmTfiHL5hQtKNh9i+XOsCHOLISwH9CZ4+efKCjTRhbClgJr58+fIFxJnL",
+	"4Dtjx1pUEO9cspnMhLa8kHbOzmb5ubBsLpyXQIRXVWHYExAILo6zqyyRKE6C49gHECwCnVmlpzry1MZv",
+	"OJiU+VSwivb0KsWfOoM7Hxned9Sm0Tws16YtaBq3lm3tG+TMcCT3o7T0y0tLp3WgQfLXn8lbda0k0cmx",
+	"H+/uZ0n1ROxmoFBe+w71AzPCG2Cdnks0lS0HXEPQz7ww7DsKaS8cCysz0RSbahkwHRah942oDACdSpgD",
+	"u+zIuSVFYbmB9at8u51B0alNq7yXVexExazcaQZNwP2+xBeUrXYFhRmtc+SFWZAjL3k13YfOrYcEKrg7",
+	"vI96cO/ymh6EBUXJShjnKrAMWtXZuwcyahUjNip+rymDg1+B3wtuwb3sRm7/hTWiHKFEAJHAqBPwI43E",
+	"vJm81ivUXXoOKpISeosyd86i0BYmNgmQn86Twm2Nw+CfwIq85gIaO2WicRjqSoDRAhHIYYt5WaewIapj",
+	"zE1cqRNT/NBIChjIanTLzYluAt/pQrx9e4/r1S8E4li7H1vvryB+0lYpdC3Nr/Oa/IjC8tG68P6VnXke",
+	"dqNVkZ3hOw/PYsdissltvkIN6hra+T64YLy9ZUXoqPJBI3KZMJ5pZQyMi86bB6GgWxPVpD5BeaQnPWTX",
+	"XB6hKXeROvkDVUFFXgE6U78IBMtfAAQPXPmmLZE3iIotFTkWyQrgddWGvnCxubfBdF+PeA49up2w5/dp",
+	"RqnPzUcx4VefiLZ5Snljt96awOCZwu0Jt0IXvLxFY4tLnVFprF0T6JSdqXwpApRPrfk09Ol9no1GYytR",
+	"oXyHPsYevhdcqIWtsgkg1JKNvjE+VCa0E0u18EBPvj+w1Y1V2RtmlHNEd4o0FHNd0Qy1zSnqBVMXLCGu",
+	"plzmIh9G6jaX8CvFlBCAzEtO7alz9U1DnoaUdX76B8aTSrLSIrNcns9KrpOBnLHfMb7z89//17uQsqvZ",
+	"Q6Vrejzyv51qMeXa2fAgwI5iKcJACYSpsGiR8x8PR6jD9tF5btTutYszMFZMweJSFhAs4rwwQLd+AV7G",
+	"pG6dPAl3bKEHMozTdA9ZJOUnqE7FKrzyGBEHgn5/yh24M73+nXvAfvqR/el/Zq4LO9h8N1gntSi5LS6q",
+	"lB8DGa0JCOtn6DFbNXDHBQWgWErDALT/nQ7M+E8/ft0dyM5fHv/+Kbgss5/+93u93d6nh+zhTHOgMTvH",
+	"j18eHbOvXh09hexsPfawtwtO+g7YC01oFK3vossPMHdojqImenKj8NrZ799fAXrVJGPvCf6q2cwvJDQu",
+	"jHYpT+MuIb+vb4Y3FS6utP3O3Pke1uujf9tHCfSDZRFYuCpvjkazdD+/KyvYKqYt0qnrwaWgN38GUtaa",
+	"RKmiRR8lrV8DmtO7HKXV0hXG569pg4nTkhszE4ZxprnMgdWBalgnxPLv7n3OzgprupWmAhzBJMEDUIj/",
+	"QBqRaWGDtRYtBd47XJbzwxCyJLTHbYDnyCM5DICBHHMzJicA9E0r1blhhV3OhryErr4n3gPr/oUYDmz7",
+	"mugBXKakMia5BQDnBYk83K/9wH+8wN8/wcGzzThtlojQOFKx5pVNXwc/9FyUwoq16cuJuFBvnISDNR26",
+	"YMQqdLS/263ELIdg7EDvXUq6KA7WG8o01ptTnU6L20YqHmB3Pam4/vp/BxXrq1ePH7Re+/uLs0XT8hFk",
+	"8VfB5sJSvPsx0ULm5n0mtjIO63VJMqs6cGLk7owKi4EE98aw/6OcJKkp1RTCrTEO84wbEYNcYDZSaMXp",
+	"g08fYE2Vy3XqS6SVr2jVXfjuspC5uqwa3OsD/iJclVqVPq7bFJgD6qd/2GOnD1jnkmtAXCRNyk//cBcf",
+	"kvdDF80nSoJV/nQsLsdcW/At1ZZ1Hp8+Z599/ll/e88N5xth7DkGs6ATwO72nqkqT9ju9l2AO9jb3jMJ",
+	"O9neNwnb394lc9Ru/wrCQcEtq4uaEwETycknv5pYU3eTN+QYiWF5cWavw0a2SVLGlEUwAg1kGho4YCNe",
+	"GsrJdVGokpRpXk1mqnSWEXo7OIpcqBKdM9BzcSQufdC+vVQLi2PHQjsPg7DoEPVN64HOInJWls4rk5os",
+	"TDUJPXZEAfFsF2Phq1ENJGzsQwbxgzIjwEOPaSnjHYG+rghw2ZFcI+KD9XOB2j9YRDxWzF3oScQfYlhk",
+	"JpLF9K/qUg7kV8cML/J8poWhOKda4teEaQE6Tat0Ww7YdokSe7PkHlkVo3w7UMUfIgFZWxthtGsHDuM8",
+	"vQjFWsKZH2K4KNCP2EUJbL7oP3WxNCYdNsYthFM/4baldXF1TetW3ULbX6pLNuFy3jyTScUGocN0nYAm",
+	"hNZmIyK9rJf+fTsS514MxLlXw+Hc+8A4nHSelvniCF3ApMDR9SNKAg6IzCvS+NFGdvts0QOIRfEch4Ox",
+	"9Aea/L3JuxzZjMZlDotTv3kjtor2+i0liyOua2daKtszF+fvif3CVmoxKtRu2ohyr66FhOWaX5JjYsXr",
+	"IJdyEPMODpmOXFzoKsuEtMgaSHe3EU80kBErRPMcwut8bch60KkQ6DFUCkRc89iJCFVZwt190sKMSGWp",
+	"16suvxelsqdf//7jHfjxDvx4B0Z3YDHh52LHXJz/9mpS3iBwAknDx2vs9mGmY9JLQRBIuxNGVOyWbyVo",
+	"W2QzDVpDoIpngmuhj2Z2vHXwh9dvX4cGm+ehSllJDpFqVHOkqBzqO5Uwbrq9ar9DqRYMqEcE6xzX5Q8a",
+	"+TdHkcJwi5qoSjcni5U+lhdCG8Gq3H/QX6+lq6F7xfVVn7dV+tWRz1wNfeGzvMDEpkXZq+dWEZdthasA",
+	"jzqSeBLcuKOoinBvZhUIea0V57y40MzXrUEOSRX1UQEHN1MZh9q/y1oqpnxkmFTLmYEirxVWpT5jU1UW",
+	"WSHiaXUF2mp98Zi0WvHn9KDl6ydg1xEmoJrjnxNhdZH5YUU5NHpNXCla1tdv/98BAA==",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,

@@ -333,6 +333,9 @@ func (s *Pages) curveView(c echo.Context, id string) (*curveView, error) {
 
 // equationText writes the fitted equation with 6 significant digits.
 func equationText(r *calib.Report) string {
+	if r.Curve != nil {
+		return curveEquationText(r)
+	}
 	b, ok := r.Slope()
 	if !ok {
 		return "no fit"
@@ -541,3 +544,25 @@ func trendAltText(t *lab.Trend) string {
 }
 
 func g4(v float64) string { return strconv.FormatFloat(v, 'g', 4, 64) }
+
+// curveEquationText writes a non-linear curve's equation and its named
+// parameters (6 significant digits) and, for power_of_mean or 1/s², θ.
+func curveEquationText(r *calib.Report) string {
+	names := calib.ParameterNames(r.Model)
+	if len(r.Coefficients) != len(names) {
+		return "no fit (" + r.Curve.Outcome + ")"
+	}
+	var sb strings.Builder
+	sb.WriteString(calib.Equation(r.Model))
+	for i, n := range names {
+		sep := "; "
+		if i > 0 {
+			sep = ", "
+		}
+		sb.WriteString(sep + n + " = " + strconv.FormatFloat(r.Coefficients[i], 'g', 6, 64))
+	}
+	if r.Weighting == calib.WeightVarPower || r.Weighting == calib.WeightInvS2 {
+		sb.WriteString("; θ = " + strconv.FormatFloat(r.Curve.Theta, 'g', 4, 64))
+	}
+	return sb.String()
+}

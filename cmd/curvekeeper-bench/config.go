@@ -11,7 +11,7 @@ import (
 )
 
 // scenarioNames are every scenario, in the order they run.
-var scenarioNames = []string{"startup", "ingest", "predict", "history", "fit"}
+var scenarioNames = []string{"startup", "ingest", "predict", "history", "fit", "fit_4pl"}
 
 // config is every setting of one harness run, parsed once from flags.
 type config struct {

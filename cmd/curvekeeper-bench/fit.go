@@ -15,13 +15,27 @@ const (
 	fitRounds     = 3
 	fitBenchFile  = "calib/bench_test.go"
 	fitScriptFile = "testdata/gen/bench_statsmodels.py"
-	python        = "/usr/bin/python3"
+	// fit4PLScriptFile times scipy's curve_fit for the fit_4pl line.
+	fit4PLScriptFile = "testdata/gen/bench_scipy_4pl.py"
+	python           = "/usr/bin/python3"
 )
 
 var (
 	goNsPerOp = regexp.MustCompile(`BenchmarkFullReport\S*\s+\d+\s+([0-9.]+) ns/op`)
 	pyNsPerOp = regexp.MustCompile(`BenchmarkStatsmodelsWLS.*: ([0-9.]+) ns/op`)
+
+	go4PLNsPerOp = regexp.MustCompile(`BenchmarkFullReport4PL\S*\s+\d+\s+([0-9.]+) ns/op`)
+	py4PLNsPerOp = regexp.MustCompile(`BenchmarkScipyCurveFit4PL/\S+ params [^:]*: ([0-9.]+) ns/op`)
 )
+
+// comparison is one engine benchmark against a Python baseline, run side
+// by side in alternating rounds.
+type comparison struct {
+	scenario, bench, script, module string
+	goRe, pyRe                      *regexp.Regexp
+	target                          float64
+	serviceIs, baselineIs           string
+}
 
 // fit compares calib's full report (BenchmarkFullReport in
 // calib/bench_test.go: the fit, every check, the limits and one inverse
@@ -29,18 +43,36 @@ var (
 // (testdata/gen/bench_statsmodels.py), both run now, in alternating rounds.
 // The figures are fits per second.
 func (h *harness) fit(ctx context.Context) error {
-	for _, f := range []string{fitBenchFile, fitScriptFile} {
+	return h.compare(ctx, comparison{scenario: "fit", bench: "BenchmarkFullReport", script: fitScriptFile, module: "statsmodels",
+		goRe: goNsPerOp, pyRe: pyNsPerOp, target: 8,
+		serviceIs: "calib full report + 1 prediction", baselineIs: "statsmodels WLS fit"})
+}
+
+// fit4PL compares calib's full report of a 1/y²-weighted 4PL
+// (BenchmarkFullReport4PL: self-start, fit, every check, the precision
+// profile, one inverse prediction with its band-inversion interval) with
+// scipy's bare curve_fit of the same data and weights
+// (testdata/gen/bench_scipy_4pl.py; the faster of its two variants).
+func (h *harness) fit4PL(ctx context.Context) error {
+	return h.compare(ctx, comparison{scenario: "fit_4pl", bench: "BenchmarkFullReport4PL", script: fit4PLScriptFile, module: "scipy",
+		goRe: go4PLNsPerOp, pyRe: py4PLNsPerOp, target: 20,
+		serviceIs: "calib 4PL full report + 1 prediction", baselineIs: "scipy curve_fit, faster of trf/lm"})
+}
+
+// compare runs one comparison and prints its line.
+func (h *harness) compare(ctx context.Context, c comparison) error {
+	for _, f := range []string{fitBenchFile, c.script} {
 		if _, err := os.Stat(filepath.Join(h.root, f)); err != nil {
-			skipped(h.out, "fit", f+" is not in this checkout")
+			skipped(h.out, c.scenario, f+" is not in this checkout")
 			return nil
 		}
 	}
-	if err := exec.CommandContext(ctx, python, "-c", "import statsmodels").Run(); err != nil {
-		skipped(h.out, "fit", python+" has no statsmodels")
+	if err := exec.CommandContext(ctx, python, "-c", "import "+c.module).Run(); err != nil {
+		skipped(h.out, c.scenario, python+" has no "+c.module)
 		return nil
 	}
 	if h.calibTest == "" {
-		skipped(h.out, "fit", "the calib test binary was not built")
+		skipped(h.out, c.scenario, "the calib test binary was not built")
 		return nil
 	}
 	// Both sides run in fitRounds rounds, alternating which goes first, and
@@ -64,19 +96,19 @@ func (h *harness) fit(ctx context.Context) error {
 			return nil
 		}
 	}
-	runGo := side("calib benchmark", goNsPerOp, &goNs, func() *exec.Cmd {
-		cmd := exec.CommandContext(ctx, h.calibTest, "-test.run", "^$", "-test.bench", "^BenchmarkFullReport$",
+	runGo := side("calib benchmark", c.goRe, &goNs, func() *exec.Cmd {
+		cmd := exec.CommandContext(ctx, h.calibTest, "-test.run", "^$", "-test.bench", "^"+c.bench+"$",
 			"-test.benchtime", strconv.Itoa(h.cfg.FitLoops)+"x", "-test.count", "7")
 		cmd.Dir = filepath.Join(h.root, "calib")
 		return cmd
 	})
-	runPy := side("statsmodels benchmark", pyNsPerOp, &pyNs, func() *exec.Cmd {
-		cmd := exec.CommandContext(ctx, python, fitScriptFile)
+	runPy := side(c.module+" benchmark", c.pyRe, &pyNs, func() *exec.Cmd {
+		cmd := exec.CommandContext(ctx, python, c.script)
 		cmd.Dir = h.root
 		return cmd
 	})
 	for round := 0; round < fitRounds; round++ {
-		h.progress("fit round %d/%d: BenchmarkFullReport and statsmodels", round+1, fitRounds)
+		h.progress("%s round %d/%d: %s and %s", c.scenario, round+1, fitRounds, c.bench, c.module)
 		first, second := runGo, runPy
 		if round%2 == 1 {
 			first, second = runPy, runGo
@@ -88,10 +120,10 @@ func (h *harness) fit(ctx context.Context) error {
 			return err
 		}
 	}
-	fmt.Fprintln(h.out, line{Scenario: "fit", Service: 1e9 / goNs, Baseline: 1e9 / pyNs, Unit: "fits/s",
-		Target: target{"ratio", ">=", 8}, Extra: []string{kv("service_ns_op", goNs), kv("baseline_ns_op", pyNs),
-			kv("service_is", fmt.Sprintf("calib full report + 1 prediction (best of %d)", 7*fitRounds)),
-			kv("baseline_is", fmt.Sprintf("statsmodels WLS fit (best of %d)", 7*fitRounds))}})
+	fmt.Fprintln(h.out, line{Scenario: c.scenario, Service: 1e9 / goNs, Baseline: 1e9 / pyNs, Unit: "fits/s",
+		Target: target{"ratio", ">=", c.target}, Extra: []string{kv("service_ns_op", goNs), kv("baseline_ns_op", pyNs),
+			kv("service_is", fmt.Sprintf("%s (best of %d)", c.serviceIs, 7*fitRounds)),
+			kv("baseline_is", fmt.Sprintf("%s (best of %d)", c.baselineIs, 7*fitRounds))}})
 	return nil
 }
 

@@ -73,7 +73,7 @@ func (h *harness) run(ctx context.Context) error {
 	h.progress("building cmd/curvekeeper (and calib's benchmark)")
 	calibErr := make(chan error, 1)
 	go func() {
-		if !h.cfg.has("fit") {
+		if !h.cfg.has("fit") && !h.cfg.has("fit_4pl") {
 			calibErr <- nil
 			return
 		}
@@ -107,7 +107,7 @@ func (h *harness) run(ctx context.Context) error {
 	steps := []struct {
 		name string
 		fn   func(context.Context) error
-	}{{"ingest", h.ingest}, {"predict", h.predict}, {"history", h.history}, {"fit", h.fit}}
+	}{{"ingest", h.ingest}, {"predict", h.predict}, {"history", h.history}, {"fit", h.fit}, {"fit_4pl", h.fit4PL}}
 	for _, s := range steps {
 		if !h.cfg.has(s.name) {
 			continue

@@ -100,6 +100,10 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 	if err != nil {
 		return err
 	}
+	immuno, err := loadImmunoDemo(d, tokens, now)
+	if err != nil {
+		return err
+	}
 
 	base := "http://" + cfg.Listen
 	if strings.HasPrefix(cfg.Listen, ":") {
@@ -144,6 +148,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 	}
 	fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $INSTRUMENT\" -H 'Content-Type: text/csv' --data-binary @testdata/demo/nitrate-run.csv \\\n"+
 		"       '%s/v1/runs?method=%s&instrument=%s&acquired_at=%s'\n", base, demoNitrate, demoUVVis, now().UTC().Format("2006-01-02T15:04:05Z"))
+	immuno.print(w, base)
 	fmt.Fprintf(w, "\nThese are invented data. Results support, and never replace, the laboratory's accredited procedures;\n"+
 		"its accreditation, regulator and method SOP take precedence, and a qualified person reviews results.\n")
 	_, err = io.WriteString(stdout, w.String())

@@ -56,8 +56,8 @@ func TestDemo(t *testing.T) {
 		}
 		return n
 	}
-	if n := count(`SELECT count(*) FROM runs`); n != 30 {
-		t.Errorf("runs = %d, want 30", n)
+	if n := count(`SELECT count(*) FROM runs`); n != 30+demoImmunoPlates {
+		t.Errorf("runs = %d, want %d", n, 30+demoImmunoPlates)
 	}
 	// The demo lab's certificates and stocks (demo_uncert.go): every run
 	// names the stocks of its analytes, all in date at the run.
@@ -89,6 +89,11 @@ func TestDemo(t *testing.T) {
 	}
 	if n := count(`SELECT count(*) FROM curves WHERE id = $1 AND analyte = 'As' AND verdict = 'fail'`, badStd); n != 1 {
 		t.Errorf("printed arsenic curve %s is not the failing arsenic curve", badStd)
+	}
+	// The printed saturated plate is the one whose precision profile fails.
+	saturated := demoPrintedID(t, first, "marker-K plate whose top calibrator saturates")
+	if n := count(`SELECT count(*) FROM curves WHERE id = $1 AND model = '4pl' AND 'precision_profile' = ANY(failed_checks)`, saturated); n != 1 {
+		t.Errorf("printed plate %s is not the saturated 4PL plate", saturated)
 	}
 	if !strings.Contains(first, "/v1/trends?instrument="+demoICPMS+"&analyte=Pb&parameter=slope") {
 		t.Errorf("demo does not print the lead slope trend:\n%s", first)
@@ -134,8 +139,11 @@ func TestDemo(t *testing.T) {
 	if !strings.Contains(second, "loaded before") {
 		t.Errorf("second load did not say the runs were there:\n%s", second)
 	}
-	if n := count(`SELECT count(*) FROM runs`); n != 30 {
-		t.Errorf("runs after a second load = %d, want 30", n)
+	if n := count(`SELECT count(*) FROM runs`); n != 30+demoImmunoPlates {
+		t.Errorf("runs after a second load = %d, want %d", n, 30+demoImmunoPlates)
+	}
+	if got := demoPrintedID(t, second, "marker-K plate whose top calibrator saturates"); got != saturated {
+		t.Errorf("second demo printed the saturated plate %s, the first %s", got, saturated)
 	}
 	if got := demoPrintedID(t, second, "nitrate, fails linearity"); got != curved {
 		t.Errorf("second demo prints nitrate curve %s, the first printed %s", got, curved)

@@ -1,0 +1,144 @@
+package calib
+
+import "math"
+
+// predictCurve is Report.Predict for the non-linear models: x̂0 from the
+// closed-form inverse of the curve, its delta-method standard error
+//
+//	s(x̂0)² = [s²/(m·w0) + ∇βf(x̂0)ᵀ·Cov(β)·∇βf(x̂0)] / f′(x̂0)²
+//
+// and the interval by inverting the prediction band of the mean of m
+// readings: every x ≥ 0 with |f(x) − ȳ0| ≤ t(1 − α/2; DF)·√(s²/(m·w0(x)) +
+// ∇βf(x)ᵀ·Cov·∇βf(x)), w0(x) the weight an unknown at x gets. The band is
+// walked outwards from x̂0 in steps of half the delta-method half-width (2 % to 100 % of x̂0), up to 10⁶ times the
+// range's ends, and each crossing is refined by bisection; a band that
+// does not close above leaves the upper bound open (Interval.HighOpen,
+// +∞), one that does not close below bounds it at 0 (no negative
+// concentration). A response outside the asymptotes gives no
+// concentration and a flag naming the asymptote.
+func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Prediction) error {
+	c := curveOf(r.Model)
+	if len(r.Coefficients) != c.NumParams() || len(r.Covariance) != c.NumParams() || r.Curve == nil {
+		return inputErr("report.coefficients", "the curve did not converge (a failed run has no curve)")
+	}
+	if r.DF < 1 {
+		return inputErr("report.df", "no residual degrees of freedom")
+	}
+	pr.Method = "band_inversion"
+	pr.Interval.Level = confidence
+	beta := r.Coefficients
+	x0, flag, ok := c.invert(y0, beta)
+	if !ok {
+		pr.Flags = append(pr.Flags, flag, FlagUnbounded)
+		return nil
+	}
+	pr.Flags = r.Range.appendFlags(pr.Flags, x0)
+	pr.Concentration = x0 * pr.Dilution
+	grad := make([]float64, len(beta))
+	_, v := r.unknownVar(c, x0, m, grad)
+	se := math.Sqrt(v) / math.Abs(c.slope(x0, beta))
+	if Finite(se) {
+		pr.StandardError = se * pr.Dilution
+	}
+	t := studentT(1-(1-confidence)/2, r.DF)
+	inside := func(x float64) bool {
+		fx, v := r.unknownVar(c, x, m, grad)
+		return Finite(fx, v) && math.Abs(fx-y0) <= t*math.Sqrt(v)
+	}
+	if !inside(x0) {
+		// Rounding at an extreme x̂0: no band to invert.
+		pr.Flags = append(pr.Flags, FlagUnbounded)
+		return nil
+	}
+	// Steps of about half the delta-method half-width (at least 2 %)
+	// reach the band's edges in a few evaluations.
+	step := 1.02
+	if rel := t * se / x0; Finite(rel) {
+		step = 1 + min(max(0.5*rel, 0.02), 1)
+	}
+	lo := r.bandEdge(inside, x0, -1, step)
+	hi := r.bandEdge(inside, x0, +1, step)
+	pr.Interval.Low = lo * pr.Dilution
+	if math.IsInf(hi, 1) {
+		pr.Interval.HighOpen = true
+		pr.Flags = append(pr.Flags, FlagUnbounded)
+		return nil
+	}
+	pr.Interval.High = hi * pr.Dilution
+	pr.Interval.Bounded = true
+	return nil
+}
+
+// bandEdge walks from x0 (inside the band) in direction dir (−1 down, +1
+// up) by factors of step and returns the last x inside, refined by
+// bisection in log x to 1e-13 relative; +Inf going up and 0 going down
+// when the band never closes.
+func (r *Report) bandEdge(inside func(float64) bool, x0 float64, dir int, step float64) float64 {
+	lim := r.Range.High * 1e6
+	if dir < 0 {
+		lim = r.Range.Low * 1e-6
+		if x0 <= 0 {
+			return 0
+		}
+	}
+	in, x := x0, x0
+	f := math.Pow(step, float64(dir))
+	for range 4000 {
+		x *= f
+		if (dir > 0 && x > lim) || (dir < 0 && x < lim) {
+			if dir > 0 {
+				return math.Inf(1)
+			}
+			if inside(0) {
+				return 0
+			}
+			x = 0
+			break
+		}
+		if !inside(x) {
+			break
+		}
+		in = x
+	}
+	out := x
+	for range 200 {
+		if out > 0 && math.Abs(out-in) <= 1e-13*in {
+			break
+		}
+		var mid float64
+		if out == 0 {
+			mid = in / 2
+		} else {
+			mid = math.Sqrt(in * out)
+		}
+		if inside(mid) {
+			in = mid
+		} else {
+			out = mid
+		}
+	}
+	return in
+}
+
+// curveMeanBand is MeanBand for a non-linear model: t·√(∇βfᵀ·Cov·∇βf),
+// the delta-method band of the fitted curve.
+func (r *Report) curveMeanBand(c calibCurve, x float64) (float64, bool) {
+	p := c.NumParams()
+	if len(r.Coefficients) != p || len(r.Covariance) != p {
+		return 0, false
+	}
+	t, err := tQuantile(r.Confidence, r.DF)
+	if err != nil {
+		return 0, false
+	}
+	grad := make([]float64, p)
+	c.Eval(x, r.Coefficients, grad)
+	var v float64
+	for j := range grad {
+		for k := range grad {
+			v += grad[j] * r.Covariance[j][k] * grad[k]
+		}
+	}
+	h := t * math.Sqrt(max(v, 0))
+	return h, Finite(h)
+}

@@ -1,0 +1,765 @@
+package calib
+
+import (
+	"math"
+	"slices"
+	"sort"
+	"strings"
+
+	"gonum.org/v1/gonum/stat/distuv"
+)
+
+// WeightVarPower weights a non-linear fit by a power-of-the-mean variance
+// function Var(y) = σ²·|ŷ|^(2θ) (nlme's varPower), θ estimated from the
+// replicates by iterating fit and weights (see estimateTheta). Only the
+// non-linear models accept it.
+const WeightVarPower Weighting = "power_of_mean"
+
+// Check names of the non-linear models (beside min_levels, back_calculation,
+// lack_of_fit and monotonic, which they share with the linear ones).
+const (
+	CheckConvergence      = "convergence"
+	CheckPrecisionProfile = "precision_profile"
+)
+
+// Defaults of the non-linear checks.
+const (
+	// CurveBackCalcTolerancePct and CurveBackCalcEndTolerancePct: ICH M10
+	// (2022) ligand-binding assays, back-calculated calibrators within
+	// ±20 % of nominal, ±25 % at the LLOQ and the ULOQ.
+	CurveBackCalcTolerancePct    = 20
+	CurveBackCalcEndTolerancePct = 25
+	// ProfileCVLimitPct: the precision profile's working range is where the
+	// CV of the back-calculated concentration stays at or under 20 %
+	// (common practice for immunoassay functional sensitivity).
+	ProfileCVLimitPct = 20
+	// AnchorPrefix: a calibrator whose level label starts with "anchor"
+	// (any case) is an anchor point: fitted, outside the range, never
+	// judged (ICH M10 ligand-binding assays).
+	AnchorPrefix = "anchor"
+)
+
+// CurveModels lists the non-linear models a method may name.
+func CurveModels() []Model {
+	return []Model{FourPL, FivePL, Power, ExpSaturation, ExpSaturationOffset}
+}
+
+// IsCurveModel reports whether m is one of CurveModels.
+func IsCurveModel(m Model) bool { return curveOf(m) != nil }
+
+// CurveWeightings lists the weightings a non-linear model accepts.
+func CurveWeightings() []Weighting {
+	return []Weighting{WeightNone, WeightInvY2, WeightInvS2, WeightVarPower}
+}
+
+// ParameterNames returns the names of a non-linear model's coefficients in
+// the order of Report.Coefficients (see FourPL for their meaning), or nil.
+func ParameterNames(m Model) []string {
+	switch m {
+	case FourPL:
+		return []string{"a", "b", "c", "d"}
+	case FivePL:
+		return []string{"a", "b", "c", "d", "g"}
+	case Power, ExpSaturation:
+		return []string{"a", "b"}
+	case ExpSaturationOffset:
+		return []string{"a", "b", "y0"}
+	}
+	return nil
+}
+
+// Equation returns a non-linear model's equation in its parameter names
+// (see FourPL), or "".
+func Equation(m Model) string {
+	switch m {
+	case FourPL:
+		return "y = d + (a − d)/(1 + (x/c)^b)"
+	case FivePL:
+		return "y = d + (a − d)/(1 + (x/c)^b)^g"
+	case Power:
+		return "y = a·x^b"
+	case ExpSaturation:
+		return "y = a·(1 − e^(−b·x))"
+	case ExpSaturationOffset:
+		return "y = y0 + a·(1 − e^(−b·x))"
+	}
+	return ""
+}
+
+// CurveDetails is what a Report of a non-linear model adds (nil for the
+// least-squares models).
+type CurveDetails struct {
+	ParameterNames []string
+	Fixed          []bool
+	Start          []float64
+	Outcome        string // converged, stalled, iteration_limit, singular
+	Criterion      string
+	Iterations     int
+	// Theta is the exponent of the variance function Var(y) = σ²·|ŷ|^(2θ)
+	// an unknown's weight follows: 0 unweighted, 1 for 1/y², estimated for
+	// power_of_mean and 1/s² (ThetaMethod says how).
+	Theta       float64
+	ThetaMethod string
+	// ThetaIterations counts the fit–weight rounds of power_of_mean.
+	ThetaIterations int
+	// ResponseFloor keeps |ŷ|^(2θ) away from zero: the smallest non-zero
+	// |fitted response| of a calibrator.
+	ResponseFloor float64
+	// Replicates is the readings per unknown the precision profile assumes
+	// (the median readings per calibrator level).
+	Replicates int
+	Profile    []ProfilePoint
+	// ProfileLimitPct is the CV limit of the working range.
+	ProfileLimitPct float64
+	// WorkingRange is the widest interval of the profile inside the
+	// calibrated range where CV ≤ ProfileLimitPct; HasWorkingRange false
+	// when there is none.
+	WorkingRange    Range
+	HasWorkingRange bool
+	Anchors         []string // level labels of anchor calibrators
+	LogX            bool     // plot on a log concentration axis (logistic models)
+}
+
+// ProfilePoint is one point of the precision profile: the CV (%) of the
+// concentration read back from the mean of Replicates readings at X.
+type ProfilePoint struct {
+	X     float64
+	CVPct float64
+	OK    bool // false when no SE exists there (flat curve); CVPct is 0
+}
+
+// curveLevel is one calibrator level of a non-linear fit.
+type curveLevel struct {
+	label    string
+	x        float64
+	idx      []int // indices into the fitted readings
+	anchor   bool
+	meanY    float64
+	sd       float64
+	hasSD    bool
+	meanYHat float64
+}
+
+// fitCurveReport is Fit for the non-linear models.
+func fitCurveReport(points []Point, opt Options) (*Report, error) {
+	opt, err := resolveCurveOptions(opt)
+	if err != nil {
+		return nil, err
+	}
+	var x, y []float64
+	var pidx []int
+	for i, p := range points {
+		if !Finite(p.X, p.Y) {
+			return nil, inputErr("points["+itoa(i)+"]", "reading is not a finite number")
+		}
+		if p.Excluded {
+			continue
+		}
+		x, y, pidx = append(x, p.X), append(y, p.Y), append(pidx, i)
+	}
+	levels := groupCurveLevels(points, pidx)
+	c := curveOf(opt.Model)
+	np := c.NumParams()
+	if len(x) <= np {
+		return nil, inputErr("points", "%d fitted readings for %d coefficients of %s", len(x), np, opt.Model)
+	}
+	cd := &CurveDetails{ParameterNames: ParameterNames(opt.Model), ProfileLimitPct: ProfileCVLimitPct,
+		LogX: opt.Model == FourPL || opt.Model == FivePL}
+	for _, l := range levels {
+		if l.anchor {
+			cd.Anchors = append(cd.Anchors, l.label)
+		}
+	}
+	w := make([]float64, len(x))
+	var fit *CurveFit
+	switch opt.Weighting {
+	case WeightNone:
+		fit, err = FitCurve(x, y, nil, CurveOptions{Model: opt.Model})
+		cd.ThetaMethod = "unweighted: θ = 0"
+	case WeightInvY2:
+		for i, v := range y {
+			w[i] = 1 / (v * v)
+			if v == 0 {
+				return nil, inputErr("points", "1/y² weighting: reading %d has response 0", pidx[i])
+			}
+		}
+		fit, err = FitCurve(x, y, w, CurveOptions{Model: opt.Model})
+		cd.Theta, cd.ThetaMethod = 1, "1/y²: θ = 1 (an unknown is weighted 1/ŷ² at its concentration)"
+	case WeightInvS2:
+		floor := math.Inf(1)
+		for _, l := range levels {
+			if !l.hasSD {
+				return nil, inputErr("points", "1/s² weighting: level %q has fewer than two readings", l.label)
+			}
+			if l.sd > 0 {
+				floor = min(floor, l.sd)
+			}
+		}
+		if math.IsInf(floor, 1) {
+			return nil, inputErr("points", "1/s² weighting: every level's replicates are identical")
+		}
+		for _, l := range levels {
+			for _, k := range l.idx {
+				s := max(l.sd, floor)
+				w[k] = 1 / (s * s)
+			}
+		}
+		fit, err = FitCurve(x, y, w, CurveOptions{Model: opt.Model})
+		if err == nil && fit.Outcome == Converged {
+			setLevelFits(levels, fit)
+			th, ok := thetaFromReplicates(levels)
+			cd.Theta = th
+			cd.ThetaMethod = "1/s²: each calibrator weighted by 1/(its level's SD)²; an unknown by σ²·|ŷ|^(2θ) with θ the slope of ln s on ln|ŷ| over the levels (least squares, θ clamped to [0, 2])"
+			if !ok {
+				cd.ThetaMethod = "1/s²: each calibrator weighted by 1/(its level's SD)²; θ could not be estimated (fewer than 3 levels with a non-zero SD), an unknown is weighted as θ = 0"
+			}
+		}
+	case WeightVarPower:
+		fit, err = FitCurve(x, y, nil, CurveOptions{Model: opt.Model})
+		if err == nil && fit.Outcome == Converged {
+			fit, cd.Theta, cd.ThetaIterations, cd.ThetaMethod, err = estimateTheta(x, y, w, levels, fit, opt.Model)
+		}
+	}
+	if err != nil {
+		return nil, err
+	}
+	cd.Fixed, cd.Start = fit.Fixed, fit.Start
+	cd.Outcome, cd.Criterion, cd.Iterations = fit.Outcome.String(), fit.Criterion, fit.Iterations
+	return buildCurveReport(points, pidx, x, y, levels, fit, cd, opt), nil
+}
+
+// resolveCurveOptions validates opt for a non-linear model.
+func resolveCurveOptions(opt Options) (Options, error) {
+	if opt.Weighting == "" {
+		opt.Weighting = WeightNone
+	}
+	if !slices.Contains(CurveWeightings(), opt.Weighting) {
+		return opt, inputErr("options.weighting", "weighting %q is not offered for the non-linear model %s (none, 1/y^2, 1/s^2, power_of_mean)", opt.Weighting, opt.Model)
+	}
+	return opt, resolveConfidencePolicy(&opt)
+}
+
+// groupCurveLevels groups the fitted readings (pidx into points) by
+// concentration, in increasing concentration.
+func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
+	byX := map[float64]*curveLevel{}
+	var out []*curveLevel
+	for k, i := range pidx {
+		p := points[i]
+		l := byX[p.X]
+		if l == nil {
+			l = &curveLevel{label: p.Level, x: p.X, anchor: strings.HasPrefix(strings.ToLower(p.Level), AnchorPrefix)}
+			byX[p.X] = l
+			out = append(out, l)
+		}
+		l.idx = append(l.idx, k)
+	}
+	sort.Slice(out, func(i, j int) bool { return out[i].x < out[j].x })
+	for _, l := range out {
+		var s, ss float64
+		for _, k := range l.idx {
+			s += points[pidx[k]].Y
+		}
+		l.meanY = s / float64(len(l.idx))
+		for _, k := range l.idx {
+			d := points[pidx[k]].Y - l.meanY
+			ss += d * d
+		}
+		if len(l.idx) > 1 {
+			l.sd, l.hasSD = math.Sqrt(ss/float64(len(l.idx)-1)), true
+		}
+	}
+	return out
+}
+
+// setLevelFits sets each level's mean fitted response.
+func setLevelFits(levels []*curveLevel, f *CurveFit) {
+	c := curveOf(f.Model)
+	for _, l := range levels {
+		l.meanYHat = c.Eval(l.x, f.Coefficients, nil)
+	}
+}
+
+// thetaFromReplicates returns the least-squares slope of ln s on ln|ŷ| over
+// the levels with a non-zero replicate SD, clamped to [0, 2]; ok is false
+// with fewer than three such levels or no spread in ln|ŷ|.
+func thetaFromReplicates(levels []*curveLevel) (float64, bool) {
+	var u, v []float64
+	for _, l := range levels {
+		if l.hasSD && l.sd > 0 && l.meanYHat != 0 && Finite(l.meanYHat) {
+			u, v = append(u, math.Log(math.Abs(l.meanYHat))), append(v, math.Log(l.sd))
+		}
+	}
+	if len(u) < 3 {
+		return 0, false
+	}
+	_, b1, ok := lineFit(u, v)
+	if !ok || !Finite(b1) {
+		return 0, false
+	}
+	return min(max(b1, 0), 2), true
+}
+
+// estimateTheta iterates fit and weights for power_of_mean: from the
+// unweighted fit, θ is the slope of ln(level SD) on ln|ŷ(level)|
+// (thetaFromReplicates), every reading is weighted 1/max(|ŷᵢ|, floor)^(2θ),
+// the curve is refitted from the previous coefficients, and so on until θ
+// moves by less than 1e-4 (at most 20 rounds). The level SDs are the
+// replicates' own and do not change; the fitted means do.
+func estimateTheta(x, y, w []float64, levels []*curveLevel, fit *CurveFit, m Model) (*CurveFit, float64, int, string, error) {
+	c := curveOf(m)
+	theta, rounds := 0.0, 0
+	const how = "power_of_mean: Var(y) = σ²·|ŷ|^(2θ); θ is the least-squares slope of ln(level SD) on ln|ŷ| over the calibrator levels with replicates (clamped to [0, 2]), iterated with a weighted refit until θ moves by less than 1e-4"
+	for rounds < 20 {
+		setLevelFits(levels, fit)
+		th, ok := thetaFromReplicates(levels)
+		if !ok {
+			return fit, 0, rounds, "power_of_mean: θ could not be estimated (fewer than 3 levels with replicates and a non-zero SD); the fit is unweighted, θ = 0", nil
+		}
+		rounds++
+		floor := responseFloor(x, fit)
+		for i := range x {
+			w[i] = math.Pow(max(math.Abs(c.Eval(x[i], fit.Coefficients, nil)), floor), -2*th)
+		}
+		nf, err := FitCurve(x, y, w, CurveOptions{Model: m, Start: fit.Coefficients})
+		if err != nil {
+			return nil, 0, rounds, how, err
+		}
+		if nf.Outcome != Converged {
+			return nf, th, rounds, how + " (the weighted refit did not converge)", nil
+		}
+		fit = nf
+		if math.Abs(th-theta) < 1e-4 {
+			theta = th
+			break
+		}
+		theta = th
+	}
+	return fit, theta, rounds, how, nil
+}
+
+// responseFloor is the smallest non-zero |ŷ| at the calibrators (1 when all
+// are zero).
+func responseFloor(x []float64, fit *CurveFit) float64 {
+	c := curveOf(fit.Model)
+	fl := math.Inf(1)
+	for _, v := range x {
+		if a := math.Abs(c.Eval(v, fit.Coefficients, nil)); a > 0 {
+			fl = min(fl, a)
+		}
+	}
+	if math.IsInf(fl, 1) {
+		return 1
+	}
+	return fl
+}
+
+// buildCurveReport assembles the Report of a non-linear fit.
+func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curveLevel, fit *CurveFit, cd *CurveDetails, opt Options) *Report {
+	c := curveOf(fit.Model)
+	r := &Report{Model: fit.Model, Weighting: opt.Weighting, WeightingRequested: opt.Weighting,
+		WeightConvention: weightConvention(len(x)), WeightScale: fit.WeightScale,
+		Coefficients: fit.Coefficients, StandardErrors: fit.StandardErrors, Covariance: fit.Covariance,
+		ResidualSD: fit.ResidualSD, DF: fit.DF, N: fit.N, Confidence: opt.Confidence,
+		Cautions: Cautions(), Engine: EngineVersion, Curve: cd,
+		ZeroHandling: "responses near zero are weighted as the smallest non-zero |fitted response| (response_floor)",
+		Limits:       Limits{Detail: "not computed: the ICH Q2 slope formulas assume a straight line; the precision profile's working range takes their place for non-linear curves"},
+	}
+	cd.ResponseFloor = responseFloor(x, fit)
+	setLevelFits(levels, fit)
+	var judged []*curveLevel
+	for _, l := range levels {
+		if !l.anchor && l.x > 0 {
+			judged = append(judged, l)
+		}
+	}
+	if len(judged) > 0 {
+		r.Range = Range{Low: judged[0].x, High: judged[len(judged)-1].x}
+	}
+	xs := make([]float64, 0, len(levels))
+	for _, l := range levels {
+		xs = append(xs, l.x)
+	}
+	r.Levels = len(levels)
+	r.Points = make([]PointResult, len(points))
+	ok := fit.Outcome == Converged
+	for i, p := range points {
+		pr := &r.Points[i]
+		pr.Level, pr.X, pr.Y, pr.Excluded = p.Level, p.X, p.Y, p.Excluded
+		if ok {
+			pr.Fitted = c.Eval(p.X, fit.Coefficients, nil)
+			pr.Residual = p.Y - pr.Fitted
+			if xb, _, inv := c.invert(p.Y, fit.Coefficients); inv && Finite(xb) {
+				pr.BackCalculated, pr.HasBackCalc = xb, true
+				if p.X != 0 {
+					pr.RelativeErrorPct, pr.HasRelativeError = 100*(xb-p.X)/p.X, true
+				}
+			}
+		}
+	}
+	for k, i := range pidx {
+		wk := 1.0
+		if len(fit.Residuals) == len(pidx) {
+			wk = fit.WeightScale * r.rawWeight(points[i].X, y[k])
+		}
+		r.Points[i].Weight = wk
+		r.Points[i].WeightedResidual = math.Sqrt(wk) * r.Points[i].Residual
+	}
+	if ok && fit.Covariance != nil && fit.ResidualSD > 0 {
+		// Leverage hᵢ = wᵢ·gᵢᵀ(JᵀWJ)⁻¹gᵢ (the hat matrix of the linearised
+		// model at the solution, Cov = s²(JᵀWJ)⁻¹) and the internally
+		// studentised residual √wᵢ·rᵢ/(s·√(1 − hᵢ)), as for the line.
+		g := make([]float64, len(fit.Coefficients))
+		s2 := fit.ResidualSD * fit.ResidualSD
+		for _, i := range pidx {
+			pr := &r.Points[i]
+			c.Eval(pr.X, fit.Coefficients, g)
+			var h float64
+			for j := range g {
+				for k := range g {
+					h += g[j] * fit.Covariance[j][k] * g[k]
+				}
+			}
+			pr.Leverage = pr.Weight * h / s2
+			if 1-pr.Leverage > 1e-10 {
+				pr.Studentized = pr.WeightedResidual / (fit.ResidualSD * math.Sqrt(1-pr.Leverage))
+			}
+		}
+	}
+	// Weighted R² on the Σw = n scale.
+	var mw, sst float64
+	for k := range pidx {
+		mw += r.Points[pidx[k]].Weight * y[k]
+	}
+	mw /= float64(len(pidx))
+	for k := range pidx {
+		d := y[k] - mw
+		sst += r.Points[pidx[k]].Weight * d * d
+	}
+	if sst > 0 && ok {
+		r.RSquared = max(0, 1-fit.SSR/sst)
+	}
+	t := newText()
+	defer t.free()
+	mc := minLevelsCheck(xs, opt.Policy, t)
+	mc.Detail, mc.Mandatory = t.str(), opt.Policy.mandatory(CheckMinLevels)
+	r.Checks = append(r.Checks, convergenceCheck(fit), mc)
+	if ok {
+		cd.Replicates = medianReplicates(judged)
+		r.profile(judged, cd)
+		r.Checks = append(r.Checks,
+			curveBackCalcCheck(judged, c, fit.Coefficients, opt.Policy),
+			curveMonotonicCheck(judged, c, fit.Coefficients, opt.Policy),
+			curveLackOfFitCheck(levels, points, pidx, r, fit, opt.Policy),
+			r.profileCheck(judged, cd))
+	} else {
+		for _, name := range []string{CheckBackCalculation, CheckMonotonic, CheckLackOfFit, CheckPrecisionProfile} {
+			r.Checks = append(r.Checks, Check{Name: name, Source: curveCheckSource(name), Mandatory: curveMandatory(name, opt.Policy),
+				Detail: "Not computed: the solver did not converge (" + fit.Outcome.String() + ")."})
+		}
+	}
+	r.Verdict = verdict(r.Checks)
+	if !r.finite() {
+		// Defensive: a fit that produced non-finite numbers is reported
+		// as not converged rather than stored with NaN.
+		return FailedReport(points, Options{Model: opt.Model, Weighting: opt.Weighting, Confidence: opt.Confidence, Policy: opt.Policy},
+			inputErr("points", "the fit produced values outside the numerically usable range"))
+	}
+	return r
+}
+
+// curveMandatory: the solver's outcome always decides; the others follow the
+// policy's list (back_calculation and monotonic are mandatory by default);
+// the precision profile is advisory.
+func curveMandatory(name string, pol Policy) bool {
+	switch name {
+	case CheckConvergence:
+		return true
+	case CheckPrecisionProfile:
+		return false
+	}
+	return pol.mandatory(name)
+}
+
+// curveCheckSource names the source of each non-linear check.
+func curveCheckSource(name string) string {
+	switch name {
+	case CheckConvergence:
+		return "Levenberg–Marquardt convergence criteria (Moré 1978; MINPACK lmder): a fit that did not converge gives no curve (common practice)"
+	case CheckBackCalculation:
+		return "ICH M10 (2022) ligand-binding assays: back-calculated calibrators within ±20 % (±25 % at LLOQ and ULOQ), at least 75 % and at least 6 levels passing, anchors not judged"
+	case CheckMonotonic:
+		return "A calibration curve must be strictly monotonic over its range to give one concentration per response (common practice)"
+	case CheckLackOfFit:
+		return "Lack-of-fit F-test with pure error from replicates (Montgomery, Design and Analysis of Experiments), weighted, p = free coefficients"
+	case CheckPrecisionProfile:
+		return "Precision profile: CV of the back-calculated concentration against concentration; working range where CV ≤ 20 % (common practice for immunoassay functional sensitivity)"
+	}
+	return ""
+}
+
+func convergenceCheck(f *CurveFit) Check {
+	c := Check{Name: CheckConvergence, Computed: true, Passed: f.Outcome == Converged, Mandatory: true,
+		Source: curveCheckSource(CheckConvergence), Statistic: float64(f.Iterations)}
+	c.Detail = "The solver ended " + f.Outcome.String() + " after " + itoa(f.Iterations) + " iteration(s): " + f.Criterion + "."
+	return c
+}
+
+func medianReplicates(levels []*curveLevel) int {
+	if len(levels) == 0 {
+		return 1
+	}
+	n := make([]int, len(levels))
+	for i, l := range levels {
+		n[i] = len(l.idx)
+	}
+	slices.Sort(n)
+	return max(1, n[len(n)/2])
+}
+
+// curveBackCalcCheck judges each non-anchor calibrator level by the
+// concentration read back from its mean response (duplicate wells are
+// averaged, common practice for plate assays).
+func curveBackCalcCheck(levels []*curveLevel, c calibCurve, beta []float64, pol Policy) Check {
+	ck := Check{Name: CheckBackCalculation, Source: curveCheckSource(CheckBackCalculation), Mandatory: pol.mandatory(CheckBackCalculation),
+		Limit: pol.BackCalcMinPassFraction}
+	t := newText()
+	defer t.free()
+	pass := 0
+	for i, l := range levels {
+		tol := float64(CurveBackCalcTolerancePct)
+		if i == 0 || i == len(levels)-1 {
+			tol = CurveBackCalcEndTolerancePct
+		}
+		xb, flag, ok := c.invert(l.meanY, beta)
+		if !ok {
+			t.s(l.label).s(": no back-calculated value (").s(flag).s("). ")
+			continue
+		}
+		re := 100 * (xb - l.x) / l.x
+		if math.Abs(re) <= tol {
+			pass++
+		} else {
+			t.s(l.label).s(" (x = ").g(l.x).s("): ").g(re).s(" % outside ±").g(tol).s(" %. ")
+		}
+	}
+	if len(levels) == 0 {
+		ck.Detail = "Not computed: no non-anchor calibrator level with a non-zero concentration."
+		return ck
+	}
+	frac := float64(pass) / float64(len(levels))
+	ck.Computed, ck.Statistic = true, frac
+	ck.Passed = frac >= pol.BackCalcMinPassFraction && pass >= 6
+	t.i(pass).s(" of ").i(len(levels)).s(" calibrator level(s) within tolerance (at least ").g(100 * pol.BackCalcMinPassFraction).
+		s(" % and 6 levels needed); anchors are not judged.")
+	ck.Detail = t.str()
+	return ck
+}
+
+// curveMonotonicCheck: the fitted responses at the calibrator levels change
+// strictly in one direction, each step by more than 1e-9 of the curve's
+// span over the range.
+func curveMonotonicCheck(levels []*curveLevel, c calibCurve, beta []float64, pol Policy) Check {
+	ck := Check{Name: CheckMonotonic, Source: curveCheckSource(CheckMonotonic), Mandatory: pol.mandatory(CheckMonotonic), Computed: true}
+	if len(levels) < 2 {
+		ck.Computed, ck.Detail = false, "Not computed: fewer than two calibrator levels."
+		return ck
+	}
+	span := math.Abs(levels[len(levels)-1].meanYHat - levels[0].meanYHat)
+	dir := math.Copysign(1, levels[len(levels)-1].meanYHat-levels[0].meanYHat)
+	flat := 0
+	for i := 1; i < len(levels); i++ {
+		if dir*(levels[i].meanYHat-levels[i-1].meanYHat) <= 1e-9*span {
+			flat++
+		}
+	}
+	ck.Statistic = float64(flat)
+	ck.Passed = flat == 0 && span > 0
+	if ck.Passed {
+		ck.Detail = "The fitted curve changes strictly in one direction between every pair of adjacent calibrator levels."
+	} else {
+		ck.Detail = itoa(flat) + " step(s) between adjacent calibrator levels where the fitted curve does not change (it sits on an asymptote)."
+	}
+	return ck
+}
+
+// curveLackOfFitCheck: F = (SS_lof/(k − p))/(SS_pe/(n − k)) with weighted
+// sums on the Σw = n scale; passes when P(F) ≥ LackOfFitAlpha.
+func curveLackOfFitCheck(levels []*curveLevel, points []Point, pidx []int, r *Report, fit *CurveFit, pol Policy) Check {
+	ck := Check{Name: CheckLackOfFit, Source: curveCheckSource(CheckLackOfFit), Mandatory: pol.mandatory(CheckLackOfFit), Limit: pol.LackOfFitAlpha}
+	n, k := len(pidx), len(levels)
+	p := 0
+	for _, f := range fit.Fixed {
+		if !f {
+			p++
+		}
+	}
+	var sspe float64
+	for _, l := range levels {
+		var sw, swy float64
+		for _, j := range l.idx {
+			w := r.Points[pidx[j]].Weight
+			sw += w
+			swy += w * points[pidx[j]].Y
+		}
+		m := swy / sw
+		for _, j := range l.idx {
+			d := points[pidx[j]].Y - m
+			sspe += r.Points[pidx[j]].Weight * d * d
+		}
+	}
+	if n-k < 1 || k-p < 1 || !(sspe > 0) {
+		ck.Detail = "Not computed: needs replicates (n > levels), more levels than coefficients and some pure error."
+		return ck
+	}
+	sslof := max(fit.SSR-sspe, 0)
+	f := (sslof / float64(k-p)) / (sspe / float64(n-k))
+	pv := 1 - distuv.F{D1: float64(k - p), D2: float64(n - k)}.CDF(f)
+	ck.Computed, ck.Statistic, ck.Passed = true, pv, pv >= pol.LackOfFitAlpha
+	t := newText()
+	t.s("F = ").g(f).s(" on ").i(k - p).s(" and ").i(n - k).s(" degrees of freedom, p = ").g(pv).s(".")
+	ck.Detail = t.str()
+	t.free()
+	return ck
+}
+
+// rawWeight is the raw weight of a reading (or unknown) at concentration x
+// with response y under the report's weighting, before WeightScale:
+// 1/max(|ŷ(x)|, floor)^(2θ) for power_of_mean and 1/s² (θ from the
+// levels), 1/y² for 1/y² calibrators and 1 unweighted. For 1/s² the
+// calibrators' own weights come from their level SDs; this is the weight
+// of an unknown.
+func (r *Report) rawWeight(x, y float64) float64 {
+	cd := r.Curve
+	switch r.Weighting {
+	case WeightInvY2:
+		if y != 0 {
+			return 1 / (y * y)
+		}
+		return 1 / (cd.ResponseFloor * cd.ResponseFloor)
+	case WeightVarPower, WeightInvS2:
+		c := curveOf(r.Model)
+		return math.Pow(max(math.Abs(c.Eval(x, r.Coefficients, nil)), cd.ResponseFloor), -2*cd.Theta)
+	}
+	return 1
+}
+
+// unknownVar is the variance of the mean of m readings of an unknown at x
+// on the curve, s²/(m·w0(x)), plus the variance of the fitted curve there,
+// ∇βfᵀ·Cov·∇βf; it also returns the curve's value and the gradient buffer
+// is reused.
+func (r *Report) unknownVar(c calibCurve, x float64, m int, grad []float64) (fx, v float64) {
+	fx = c.Eval(x, r.Coefficients, grad)
+	w0 := r.WeightScale * r.rawWeight(x, fx)
+	if r.Weighting == WeightInvS2 {
+		// Level SDs set the calibrators' scale; the unknown's weight
+		// follows the θ model normalised like them.
+		w0 = r.WeightScale * r.rawWeight(x, fx) * r.s2Norm()
+	}
+	v = r.ResidualSD * r.ResidualSD / (float64(m) * w0)
+	for j := range grad {
+		for k := range grad {
+			v += grad[j] * r.Covariance[j][k] * grad[k]
+		}
+	}
+	return fx, v
+}
+
+// s2Norm brings the θ model's raw weights to the calibrators' 1/s² scale:
+// the mean over the fitted readings of (their 1/s² weight)/(the θ model's
+// weight at them).
+func (r *Report) s2Norm() float64 {
+	c := curveOf(r.Model)
+	var s float64
+	n := 0
+	for _, p := range r.Points {
+		if p.Excluded || p.Weight == 0 {
+			continue
+		}
+		rw := math.Pow(max(math.Abs(c.Eval(p.X, r.Coefficients, nil)), r.Curve.ResponseFloor), -2*r.Curve.Theta)
+		s += p.Weight / r.WeightScale / rw
+		n++
+	}
+	if n == 0 || !(s > 0) {
+		return 1
+	}
+	return s / float64(n)
+}
+
+// profile fills the precision profile: the delta-method CV of x̂0 from the
+// mean of Replicates readings at 33 concentrations spaced evenly in log x
+// over the calibrated range, and the widest run where CV ≤ the limit.
+func (r *Report) profile(levels []*curveLevel, cd *CurveDetails) {
+	if len(levels) < 2 || r.Range.Low <= 0 {
+		return
+	}
+	c := curveOf(r.Model)
+	grad := make([]float64, len(r.Coefficients))
+	const n = 33
+	lo, hi := math.Log(r.Range.Low), math.Log(r.Range.High)
+	cd.Profile = make([]ProfilePoint, n)
+	bestA, bestB, a := -1, -1, -1
+	for i := range n {
+		x := math.Exp(lo + (hi-lo)*float64(i)/float64(n-1))
+		if i == n-1 {
+			x = r.Range.High
+		}
+		_, v := r.unknownVar(c, x, cd.Replicates, grad)
+		se := math.Sqrt(v) / math.Abs(c.slope(x, r.Coefficients))
+		pp := ProfilePoint{X: x}
+		if Finite(se) {
+			pp.CVPct, pp.OK = 100*se/x, true
+		}
+		cd.Profile[i] = pp
+		if pp.OK && pp.CVPct <= cd.ProfileLimitPct {
+			if a < 0 {
+				a = i
+			}
+			if bestA < 0 || i-a > bestB-bestA {
+				bestA, bestB = a, i
+			}
+		} else {
+			a = -1
+		}
+	}
+	if bestA >= 0 {
+		cd.WorkingRange = Range{Low: cd.Profile[bestA].X, High: cd.Profile[bestB].X}
+		cd.HasWorkingRange = true
+	}
+}
+
+// profileCheck passes when the working range covers every calibrated level
+// (the CV stays ≤ the limit from the LLOQ to the ULOQ).
+func (r *Report) profileCheck(levels []*curveLevel, cd *CurveDetails) Check {
+	ck := Check{Name: CheckPrecisionProfile, Source: curveCheckSource(CheckPrecisionProfile), Limit: cd.ProfileLimitPct}
+	if len(cd.Profile) == 0 {
+		ck.Detail = "Not computed: fewer than two calibrator levels with a non-zero concentration."
+		return ck
+	}
+	worst := 0.0
+	for _, p := range cd.Profile {
+		if !p.OK {
+			worst = math.Inf(1)
+			break
+		}
+		worst = max(worst, p.CVPct)
+	}
+	ck.Computed = true
+	t := newText()
+	defer t.free()
+	if math.IsInf(worst, 1) {
+		ck.Statistic = 0
+		t.s("The CV has no finite value somewhere in the calibrated range (the curve is flat there). ")
+	} else {
+		ck.Statistic = worst
+		ck.Passed = worst <= cd.ProfileLimitPct
+		t.s("Largest CV of the back-calculated concentration over the calibrated range: ").g(worst).s(" % (").i(cd.Replicates).s(" reading(s) per unknown). ")
+	}
+	if cd.HasWorkingRange {
+		t.s("Working range where CV ≤ ").g(cd.ProfileLimitPct).s(" %: ").g(cd.WorkingRange.Low).s(" to ").g(cd.WorkingRange.High).s(".")
+	} else {
+		t.s("No part of the calibrated range has CV ≤ ").g(cd.ProfileLimitPct).s(" %.")
+	}
+	ck.Detail = t.str()
+	return ck
+}
