@@ -128,13 +128,11 @@ func TestFourEyes(t *testing.T) {
 
 	own := e.run(t, both, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 1)))
 	ownCurve := "/v1/curves/" + own.Curves[0].ID.String()
-	before := e.counts(t)
-	p := wantProblem(t, e.postJSON(t, both, ownCurve+"/review", approve), http.StatusUnprocessableEntity, "")
-	wantNamedRule(t, p, lab.RuleSelfReview)
 	// Admin holds every scope, and is refused the same way.
 	adminRun := e.run(t, e.admin, runBody("nitrate-uv", "photometer-7", baseTime.Add(time.Hour), standards("nitrate", 2)))
 	adminCurve := "/v1/curves/" + adminRun.Curves[0].ID.String()
-	before = e.counts(t)
+	before := e.counts(t)
+	wantNamedRule(t, wantProblem(t, e.postJSON(t, both, ownCurve+"/review", approve), http.StatusUnprocessableEntity, ""), lab.RuleSelfReview)
 	wantNamedRule(t, wantProblem(t, e.postJSON(t, e.admin, adminCurve+"/review", approve), http.StatusUnprocessableEntity, ""), lab.RuleSelfReview)
 	if d := before.diff(e.counts(t)); d != "" {
 		t.Errorf("refused self-reviews wrote rows: %s", d)
@@ -144,8 +142,7 @@ func TestFourEyes(t *testing.T) {
 	}
 
 	// The reviewer that made a revision by exclusion does not review it.
-	var rev oapi.Curve
-	rev = decode[oapi.Curve](t, e.postJSON(t, qa, adminCurve+"/exclusions", map[string]any{"reason": "air bubble in the L2 injection",
+	rev := decode[oapi.Curve](t, e.postJSON(t, qa, adminCurve+"/exclusions", map[string]any{"reason": "air bubble in the L2 injection",
 		"points": []map[string]any{{"level": "L2", "replicate": 1}}}), http.StatusCreated)
 	revPath := "/v1/curves/" + rev.ID.String()
 	wantNamedRule(t, wantProblem(t, e.postJSON(t, qa, revPath+"/review", approve), http.StatusUnprocessableEntity, ""), lab.RuleSelfReview)
@@ -166,17 +163,24 @@ func TestFourEyes(t *testing.T) {
 	}
 }
 
+// pendingCurveEnv posts one run from an instrument token and returns the
+// environment, its curve's path and a reviewer's token.
+func pendingCurveEnv(t *testing.T) (e *env, curve, qa string) {
+	t.Helper()
+	e = newEnv(t)
+	e.method(t, "nitrate-uv", "nitrate")
+	_, inst := e.token(t, "photometer-uploader", "runs:write")
+	_, qa = e.token(t, "qa-lead", "curves:review")
+	run := e.run(t, inst, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 1)))
+	return e, "/v1/curves/" + run.Curves[0].ID.String(), qa
+}
+
 // TestSupersededCurveNotReviewed: a curve replaced by its exclusion
 // revision never comes into force, so its review is 409 naming the
 // revision.
 func TestSupersededCurveNotReviewed(t *testing.T) {
-	e := newEnv(t)
-	e.method(t, "nitrate-uv", "nitrate")
-	_, inst := e.token(t, "photometer-uploader", "runs:write")
-	_, qa := e.token(t, "qa-lead", "curves:review")
+	e, curve, qa := pendingCurveEnv(t)
 	_, qa2 := e.token(t, "qa-second", "curves:review")
-	run := e.run(t, inst, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 1)))
-	curve := "/v1/curves/" + run.Curves[0].ID.String()
 	rev := decode[oapi.Curve](t, e.postJSON(t, qa, curve+"/exclusions", map[string]any{"reason": "air bubble in the L2 injection",
 		"points": []map[string]any{{"level": "L2", "replicate": 1}}}), http.StatusCreated)
 	before := e.counts(t)
@@ -192,12 +196,7 @@ func TestSupersededCurveNotReviewed(t *testing.T) {
 // TestReasonsRefuseBidiControls: a reason carrying an invisible
 // bidirectional control (U+202A–U+202E, U+2066–U+2069) is refused 422.
 func TestReasonsRefuseBidiControls(t *testing.T) {
-	e := newEnv(t)
-	e.method(t, "nitrate-uv", "nitrate")
-	_, inst := e.token(t, "photometer-uploader", "runs:write")
-	_, qa := e.token(t, "qa-lead", "curves:review")
-	run := e.run(t, inst, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 1)))
-	curve := "/v1/curves/" + run.Curves[0].ID.String()
+	e, curve, qa := pendingCurveEnv(t)
 	before := e.counts(t)
 	for _, c := range []rune{0x202A, 0x202E, 0x2066, 0x2069} {
 		reason := "checked " + string(c) + "deworb"
