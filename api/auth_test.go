@@ -167,6 +167,12 @@ func TestScopeMatrix(t *testing.T) {
 	const future = "2030-01-01T00:00:00Z"
 	// fixtures gives each operation a request that succeeds for an admitted
 	// caller, and that success status.
+	// CRM-0 for getStandardMaterial; createStandardMaterial counts on from it.
+	materials := 0
+	if r := e.postJSON(t, e.admin, "/v1/standard-materials", map[string]any{"code": "CRM-0", "kind": "reference_material",
+		"analyte": "nitrate", "unit": "mg/L", "value": 1000.0, "tolerance": 2.0, "expires_at": future}); r.status != http.StatusCreated {
+		t.Fatalf("standard material: %s", r)
+	}
 	fixtures := map[string]func(t *testing.T) (call, int){
 		"createRun": func(t *testing.T) (call, int) {
 			n++
@@ -242,6 +248,18 @@ func TestScopeMatrix(t *testing.T) {
 		"createInstrumentPredictions": func(*testing.T) (call, int) {
 			return jsonCall(http.MethodPost, "/v1/instruments/photometer-7/predictions", map[string]any{"analyte": "nitrate", "at": future,
 				"samples": []map[string]any{{"id": "W-1", "responses": []float64{1.5}}}}), http.StatusOK
+		},
+		"createStandardMaterial": func(*testing.T) (call, int) {
+			materials++
+			return jsonCall(http.MethodPost, "/v1/standard-materials", map[string]any{"code": fmt.Sprintf("CRM-%d", materials),
+				"kind": "reference_material", "analyte": "nitrate", "unit": "mg/L", "value": 1000.0, "tolerance": 2.0,
+				"expires_at": future}), http.StatusCreated
+		},
+		"listStandardMaterials": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: "/v1/standard-materials"}, http.StatusOK
+		},
+		"getStandardMaterial": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: "/v1/standard-materials/CRM-0"}, http.StatusOK
 		},
 		"deleteToken": func(t *testing.T) (call, int) {
 			id, _ := e.token(t, "doomed", "results:read")

@@ -24,6 +24,9 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 		Description: deref(b.Description),
 		QC:          qcFrom(b),
 	}
+	if b.ExpiredStandards != nil {
+		in.Standards.ExpiredAdvisory = *b.ExpiredStandards == oapi.MethodRequestExpiredStandardsAdvisory
+	}
 	if o := b.WeightingOptions; o != nil {
 		if o.MinReplicates != nil {
 			in.Weights.MinReplicates = *o.MinReplicates
@@ -185,6 +188,10 @@ func methodOut(m *lab.Method) oapi.Method {
 	if m.QC.MaxCurveAgeHours > 0 {
 		h := m.QC.MaxCurveAgeHours
 		out.MaxCurveAgeHours = &h
+	}
+	if m.Standards.ExpiredAdvisory {
+		adv := oapi.MethodExpiredStandardsAdvisory
+		out.ExpiredStandards = &adv
 	}
 	for _, a := range m.Analytes {
 		out.Analytes = append(out.Analytes, oapi.Analyte{Name: oapi.Identifier(a.Name), Unit: oapi.Unit(a.Unit)})

@@ -39,6 +39,9 @@ func (s *Server) GetRunResults(ctx context.Context, req oapi.GetRunResultsReques
 	if err != nil {
 		return nil, err
 	}
+	if out, ok, err := s.runResultsAs(ctx, req.ID.String(), results); ok {
+		return out, err
+	}
 	return oapi.GetRunResults200JSONResponse(oapi.RunResults{RunID: req.ID, Results: resultsOut(results), Cautions: calib.Cautions()}), nil
 }
 

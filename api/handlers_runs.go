@@ -140,6 +140,9 @@ func runInput(body *oapi.RunRequest) lab.RunInput {
 		in.Standards = append(in.Standards, lab.Standard{Analyte: string(st.Analyte), Level: string(st.Level),
 			Concentration: st.Concentration, Responses: st.Responses})
 	}
+	if body.StandardMaterials != nil {
+		in.Materials = *body.StandardMaterials
+	}
 	if body.Samples != nil {
 		in.Samples = make([]lab.Sample, 0, len(*body.Samples))
 		for _, sm := range *body.Samples {
@@ -169,6 +172,9 @@ func (s *Server) GetRun(ctx context.Context, req oapi.GetRunRequestObject) (oapi
 	}
 	if r.Operator != "" {
 		out.Operator = &r.Operator
+	}
+	if len(r.Materials) > 0 {
+		out.StandardMaterials = &r.Materials
 	}
 	for _, st := range r.Standards {
 		out.Standards = append(out.Standards, oapi.Standard{Analyte: st.Analyte, Level: st.Level,

@@ -105,7 +105,7 @@ func New(cfg Config, svc *lab.Service, log *slog.Logger) (*Server, error) {
 	}
 	e.HTTPErrorHandler = s.errorHandler
 	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware, s.framingMiddleware,
-		s.timeoutMiddleware, s.bodyLimitMiddleware, s.replicationMiddleware, s.authMiddleware, s.rateLimitMiddleware, requestValidator(spec))
+		s.timeoutMiddleware, s.bodyLimitMiddleware, s.replicationMiddleware, s.authMiddleware, s.rateLimitMiddleware, acceptMiddleware, requestValidator(spec))
 	s.metrics.registry.MustRegister(newReplicationCollector(s.topo))
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
 	s.registerDecodedRoutes(e)

@@ -30,6 +30,13 @@ func (s *Service) Ingest(ctx context.Context, p Principal, in RunInput) (*RunCre
 	if err := p.MayUse(in.Instrument); err != nil {
 		return nil, err
 	}
+	at := InBody // a CSV run names its acquired_at as a query parameter
+	if in.SourceFormat == FormatCSV {
+		at = InQuery
+	}
+	if err := s.checkClaimed(at, "/acquired_at", in.AcquiredAt, s.now()); err != nil {
+		return nil, err
+	}
 	// One round trip for the idempotency key, the method's latest revision
 	// and the drift history of every analyte the run names.
 	reads, err := s.store.ReadForRun(ctx, RunReadsQuery{TokenID: p.TokenID, Key: in.IdempotencyKey, RequestHash: in.RequestHash,
@@ -50,6 +57,18 @@ func (s *Service) Ingest(ctx context.Context, p Principal, in RunInput) (*RunCre
 		return nil, err
 	}
 	addDriftChecks(m, reads.Slopes, curves)
+	if len(in.Materials) > 0 {
+		if err := checkMaterialCodes(in.Materials); err != nil {
+			return nil, err
+		}
+		lineage, err := s.store.MaterialLineage(ctx, in.Materials)
+		if err != nil {
+			return nil, err
+		}
+		if err := addStandardsChecks(m, &in, lineage, curves); err != nil {
+			return nil, err
+		}
+	}
 	in.MethodRevision = m.Revision
 	in.TokenID, in.Actor = p.TokenID, p.Actor()
 	return s.store.CreateRun(ctx, in, curves)

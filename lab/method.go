@@ -33,6 +33,8 @@ type MethodInput struct {
 	Weights calib.WeightOptions
 	// Description is the administrator's free text about the method.
 	Description string
+	// Standards: whether an out-of-date standard material fails a curve.
+	Standards StandardsPolicy
 }
 
 // Method is one stored revision of a method.
@@ -47,6 +49,7 @@ type Method struct {
 	QC          QCPolicy
 	Weights     calib.WeightOptions // every field filled
 	Description string
+	Standards   StandardsPolicy
 	CreatedAt   time.Time
 	CreatedBy   string
 }

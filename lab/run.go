@@ -48,6 +48,9 @@ type RunInput struct {
 	Actor          string // who posted it, for the audit trail
 	Standards      []Standard
 	Samples        []Sample
+	// Materials names the standard materials (codes) the run's standards
+	// were made from; see addStandardsChecks.
+	Materials []string
 }
 
 // CurveInput is one fitted curve of a run, fitted by Ingest before
@@ -86,8 +89,8 @@ func CheckRun(in *RunInput, curves []CurveInput) error {
 		return Errorf(KindInvalid, "method revision is required")
 	case strings.TrimSpace(in.Instrument) == "" || len(in.Instrument) > MaxNameLen:
 		return FieldError("/instrument", "instrument must be 1 to %d characters", MaxNameLen)
-	case in.AcquiredAt.IsZero():
-		return FieldError("/acquired_at", "acquired_at is required")
+	case in.AcquiredAt.Before(MinTimestamp) || in.AcquiredAt.After(MaxTimestamp):
+		return CheckTimestamp(InBody, "/acquired_at", in.AcquiredAt)
 	case in.SourceFormat != FormatJSON && in.SourceFormat != FormatCSV:
 		return Errorf(KindInvalid, "unknown source format %q", in.SourceFormat)
 	case len(in.RequestHash) == 0:
@@ -127,6 +130,9 @@ func CheckRun(in *RunInput, curves []CurveInput) error {
 			}
 		}
 	}
+	if err := checkMaterialCodes(in.Materials); err != nil {
+		return err
+	}
 	in.Samples = slices.Clone(in.Samples) // the dilution default must not write into the caller's slice
 	for i := range in.Samples {
 		if err := CheckSample(&in.Samples[i], fmt.Sprintf("/samples/%d", i)); err != nil {
@@ -161,6 +167,7 @@ type Run struct {
 	Standards      []Standard
 	Samples        []Sample
 	Curves         []CurveRef
+	Materials      []string // the standard materials the run named
 }
 
 // CurveRef names one curve of a run.

@@ -13,6 +13,7 @@ package lab
 
 import (
 	"context"
+	"slices"
 	"time"
 )
 
@@ -46,12 +47,15 @@ type Reader interface {
 	Ping(ctx context.Context) error
 	CheckSchema(ctx context.Context) error
 	RunWriteStats() RunWriteStats
+	GetMaterial(ctx context.Context, code string) (*Material, error)
+	ListMaterials(ctx context.Context) ([]Material, error)
 }
 
 // Writer is what the lab writes; each write is one transaction with its
 // audit row, and the Service's methods apply the rules around it.
 type Writer interface {
 	RunStore
+	MaterialStore
 	CreateMethod(ctx context.Context, in MethodInput, actor string) (m *Method, created bool, err error)
 	// IssueToken stores a token checked by CheckTokenInput.
 	IssueToken(ctx context.Context, in TokenInput, actor string) (id, secret string, err error)
@@ -78,10 +82,18 @@ type Service struct {
 	Reader
 	store Writer
 	topo  Topology
+	now   func() time.Time // the receipt clock (WithClock)
+	skew  time.Duration    // how far ahead of receipt a claimed time may lie
 }
 
 // NewService returns the rules over st.
-func NewService(st Store) *Service { return &Service{Reader: st, store: st, topo: st} }
+func NewService(st Store, opts ...Option) *Service {
+	s := &Service{Reader: st, store: st, topo: st, now: time.Now, skew: DefaultFutureSkew}
+	for _, o := range opts {
+		o(s)
+	}
+	return s
+}
 
 // Topology returns the database's replication, for the api.
 func (s *Service) Topology() Topology { return s.topo }
@@ -127,6 +139,9 @@ func (s *Service) Review(ctx context.Context, p Principal, id, decision, reason 
 // the rules (the curve is current, fitted, not rejected, and the standard
 // measured after it) are checked with the curve locked.
 func (s *Service) Verify(ctx context.Context, p Principal, in VerificationInput) (*Verification, error) {
+	if err := s.checkClaimed(InBody, "/at", in.At, s.now()); err != nil {
+		return nil, err
+	}
 	in.Actor = p.Actor()
 	return s.store.CreateVerification(ctx, in)
 }
@@ -134,6 +149,17 @@ func (s *Service) Verify(ctx context.Context, p Principal, in VerificationInput)
 // AddSamples quantifies samples posted after their run against its curves
 // on behalf of p.
 func (s *Service) AddSamples(ctx context.Context, p Principal, runID string, samples []Sample) ([]Result, error) {
+	received := s.now().UTC()
+	samples = slices.Clone(samples)
+	for i, sm := range samples {
+		if sm.AcquiredAt == nil { // acquired when received
+			samples[i].AcquiredAt = &received
+			continue
+		}
+		if err := s.checkClaimed(InBody, Pointer("samples", i, "acquired_at"), *sm.AcquiredAt, received); err != nil {
+			return nil, err
+		}
+	}
 	return s.store.AddSamples(ctx, runID, samples, p.Actor())
 }
 

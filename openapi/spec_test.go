@@ -73,6 +73,8 @@ func TestRoutes(t *testing.T) {
 		"GET /v1/runs/{id}",
 		"GET /v1/runs/{id}/results",
 		"GET /v1/samples/{sample_id}",
+		"GET /v1/standard-materials",
+		"GET /v1/standard-materials/{code}",
 		"GET /v1/trends",
 		"GET /v1/trends/plot.svg",
 		"POST /v1/curves/{id}/exclusions",
@@ -83,6 +85,7 @@ func TestRoutes(t *testing.T) {
 		"POST /v1/methods",
 		"POST /v1/runs",
 		"POST /v1/runs/{id}/samples",
+		"POST /v1/standard-materials",
 		"POST /v1/tokens",
 	}
 	var got []string

@@ -57,6 +57,10 @@ func (db *DB) CreateMethod(ctx context.Context, in lab.MethodInput, actor string
 	if err != nil {
 		return nil, false, fmt.Errorf("store: marshal weighting options: %w", err)
 	}
+	standardsJSON, err := json.Marshal(in.Standards)
+	if err != nil {
+		return nil, false, fmt.Errorf("store: marshal standards policy: %w", err)
+	}
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
 		m, created = nil, false
 		if _, err := tx.Exec(ctx, `SELECT pg_advisory_xact_lock(hashtextextended('curvekeeper.method:' || $1, 0))`, in.Name); err != nil {
@@ -76,11 +80,11 @@ func (db *DB) CreateMethod(ctx context.Context, in lab.MethodInput, actor string
 			revision = latest.Revision + 1
 		}
 		m, err = scanMethod(tx.QueryRow(ctx, `
-INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by, qc, description, weighting_options)
-VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11)
+INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by, qc, description, weighting_options, standards)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12)
 RETURNING `+methodColumns,
 			in.Name, revision, string(in.Model), string(in.Weighting), in.Confidence, analytesJSON, policyJSON, actor, qcJSON,
-			in.Description, weightsJSON))
+			in.Description, weightsJSON, standardsJSON))
 		if err != nil {
 			return classify("insert method "+in.Name, err)
 		}
@@ -92,7 +96,8 @@ RETURNING `+methodColumns,
 		return writeAudit(ctx, tx, actor, action, entityMethod, fmt.Sprintf("%s/%d", m.Name, m.Revision),
 			map[string]any{"name": m.Name, "revision": m.Revision, "model": m.Model, "weighting": m.Weighting,
 				"confidence": m.Confidence, "analytes": m.Analytes, "acceptance": json.RawMessage(policyJSON),
-				"qc": json.RawMessage(qcJSON), "weighting_options": json.RawMessage(weightsJSON)})
+				"qc": json.RawMessage(qcJSON), "weighting_options": json.RawMessage(weightsJSON),
+				"standards": json.RawMessage(standardsJSON)})
 	})
 	if err != nil {
 		return nil, false, classify("create method", err)
@@ -104,11 +109,11 @@ func sameMethod(m *lab.Method, in lab.MethodInput) bool {
 	return m.Model == in.Model && m.Weighting == in.Weighting && m.Confidence == in.Confidence &&
 		m.Description == in.Description &&
 		slices.Equal(m.Analytes, in.Analytes) && reflect.DeepEqual(m.Acceptance, in.Acceptance) &&
-		m.QC.Equal(in.QC) && m.Weights == in.Weights
+		m.QC.Equal(in.QC) && m.Weights == in.Weights && m.Standards == in.Standards
 }
 
 const (
-	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by, qc, description, weighting_options`
+	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by, qc, description, weighting_options, standards`
 	sqlSelectMethod = `SELECT ` + methodColumns + ` FROM methods`
 )
 
@@ -143,9 +148,10 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*lab.Method, error) {
 		model, weighting     string
 		analytes, acceptance []byte
 		qc, weights          []byte
+		standards            []byte
 	)
 	if err := row.Scan(&m.Name, &m.Revision, &model, &weighting, &m.Confidence, &analytes, &acceptance, &m.CreatedAt, &m.CreatedBy,
-		&qc, &m.Description, &weights); err != nil {
+		&qc, &m.Description, &weights, &standards); err != nil {
 		return nil, err
 	}
 	m.Model, m.Weighting = calib.Model(model), calib.Weighting(weighting)
@@ -157,6 +163,7 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*lab.Method, error) {
 		if c != nil {
 			// A copy the caller may change.
 			m.Analytes, m.Acceptance, m.QC, m.Weights = slices.Clone(c.Analytes), c.Acceptance, c.QC, c.Weights
+			m.Standards = c.Standards
 			m.Acceptance.Mandatory = slices.Clone(c.Acceptance.Mandatory)
 			return &m, nil
 		}
@@ -175,6 +182,9 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*lab.Method, error) {
 		return nil, fmt.Errorf("decode weighting options of method %s/%d: %w", m.Name, m.Revision, err)
 	}
 	m.Weights = lab.WeightOptionsWithDefaults(m.Weights)
+	if err := json.Unmarshal(standards, &m.Standards); err != nil {
+		return nil, fmt.Errorf("decode standards policy of method %s/%d: %w", m.Name, m.Revision, err)
+	}
 	if cache != nil {
 		c := m
 		c.Analytes, c.Acceptance.Mandatory = slices.Clone(m.Analytes), slices.Clone(m.Acceptance.Mandatory)

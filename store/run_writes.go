@@ -276,6 +276,9 @@ func runRows(group []*runWrite, claims bool) (*pgx.Batch, error) {
 				gConcs, gResponses = append(gConcs, s.Concentration), append(gResponses, y)
 			}
 		}
+		if len(in.Materials) > 0 {
+			samples.Queue(sqlInsertRunMaterials, w.runID, in.Materials)
+		}
 		for i, s := range in.Samples {
 			samples.Queue(sqlInsertSample, w.runID, i, s.ID, s.Analyte, s.Responses, s.Dilution, s.AcquiredAt)
 		}

@@ -23,6 +23,7 @@ type storedPayload struct {
 	SourceFormat   string         `json:"source_format"`
 	Standards      []lab.Standard `json:"standards"`
 	Samples        []lab.Sample   `json:"samples"`
+	Materials      []string       `json:"standard_materials,omitempty"`
 }
 
 // preparedCurve is a curve ready to insert: ids assigned, report marshalled.
@@ -164,7 +165,7 @@ func prepareRun(ctx context.Context, in lab.RunInput, curves []lab.CurveInput) (
 	}
 	payload, err := json.Marshal(storedPayload{Method: in.Method, MethodRevision: in.MethodRevision,
 		Instrument: in.Instrument, AcquiredAt: in.AcquiredAt, Operator: in.Operator,
-		SourceFormat: in.SourceFormat, Standards: in.Standards, Samples: samples})
+		SourceFormat: in.SourceFormat, Standards: in.Standards, Samples: samples, Materials: in.Materials})
 	if err != nil {
 		return nil, nil, fmt.Errorf("store: marshal run payload: %w", err)
 	}
@@ -337,6 +338,13 @@ FROM runs WHERE id = $1`, id).Scan(&r.Method, &r.MethodRevision, &r.Instrument, 
 	}
 	if operator != nil {
 		r.Operator = *operator
+	}
+	mrows, err := tx.Query(ctx, `SELECT material FROM run_standard_materials WHERE run_id = $1 ORDER BY position`, id)
+	if err != nil {
+		return nil, classify("select run materials", err)
+	}
+	if r.Materials, err = pgx.CollectRows(mrows, pgx.RowTo[string]); err != nil {
+		return nil, classify("select run materials", err)
 	}
 
 	rows, err := tx.Query(ctx, `

@@ -33,6 +33,8 @@ func init() {
 	// plain text.
 	openapi3filter.RegisterBodyDecoder("image/svg+xml", openapi3filter.PlainBodyDecoder)
 	openapi3filter.RegisterBodyDecoder("application/yaml", openapi3filter.PlainBodyDecoder)
+	// HL7 v2 ER7 messages are text too (`type: string`).
+	openapi3filter.RegisterBodyDecoder("x-application/hl7-v2+er7", openapi3filter.PlainBodyDecoder)
 }
 
 // spec is the loaded document and a router over it, built once.

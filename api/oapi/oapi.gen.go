@@ -37,6 +37,7 @@ const (
 	CheckRSquared              CheckName = "r_squared"
 	CheckRelativeStandardError CheckName = "relative_standard_error"
 	CheckResidualRuns          CheckName = "residual_runs"
+	CheckStandardsInDate       CheckName = "standards_in_date"
 )
 
 // Valid indicates whether the value is a known member of the CheckName enum.
@@ -65,6 +66,8 @@ func (e CheckName) Valid() bool {
 	case CheckRelativeStandardError:
 		return true
 	case CheckResidualRuns:
+		return true
+	case CheckStandardsInDate:
 		return true
 	default:
 		return false
@@ -152,6 +155,39 @@ func (e HealthStatus) Valid() bool {
 	case HealthOK:
 		return true
 	case HealthReady:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for MethodExpiredStandards.
+const (
+	MethodExpiredStandardsAdvisory MethodExpiredStandards = "advisory"
+)
+
+// Valid indicates whether the value is a known member of the MethodExpiredStandards enum.
+func (e MethodExpiredStandards) Valid() bool {
+	switch e {
+	case MethodExpiredStandardsAdvisory:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for MethodRequestExpiredStandards.
+const (
+	MethodRequestExpiredStandardsAdvisory  MethodRequestExpiredStandards = "advisory"
+	MethodRequestExpiredStandardsMandatory MethodRequestExpiredStandards = "mandatory"
+)
+
+// Valid indicates whether the value is a known member of the MethodRequestExpiredStandards enum.
+func (e MethodRequestExpiredStandards) Valid() bool {
+	switch e {
+	case MethodRequestExpiredStandardsAdvisory:
+		return true
+	case MethodRequestExpiredStandardsMandatory:
 		return true
 	default:
 		return false
@@ -329,6 +365,27 @@ func (e SigmaBasis) Valid() bool {
 	case SigmaBasisLowestLevelSd:
 		return true
 	case SigmaBasisResidualSd:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for StandardMaterialKind.
+const (
+	MaterialLevel     StandardMaterialKind = "calibration_level"
+	MaterialReference StandardMaterialKind = "reference_material"
+	MaterialStock     StandardMaterialKind = "stock_solution"
+)
+
+// Valid indicates whether the value is a known member of the StandardMaterialKind enum.
+func (e StandardMaterialKind) Valid() bool {
+	switch e {
+	case MaterialLevel:
+		return true
+	case MaterialReference:
+		return true
+	case MaterialStock:
 		return true
 	default:
 		return false
@@ -551,6 +608,9 @@ type Check struct {
 	// `GET /v1/trends`). It is advisory unless the method lists it as
 	// mandatory, and it is left out when fewer than 10 approved curves
 	// exist, unless it is mandatory (then it is reported as not computed).
+	// `standards_in_date` is computed at ingest when the run names its
+	// standard materials; the method's `expired_standards` makes it
+	// mandatory (the default) or advisory, not this list.
 	Name   CheckName `json:"name"`
 	Passed bool      `json:"passed"`
 
@@ -571,6 +631,9 @@ type Check struct {
 // `GET /v1/trends`). It is advisory unless the method lists it as
 // mandatory, and it is left out when fewer than 10 approved curves
 // exist, unless it is mandatory (then it is reported as not computed).
+// `standards_in_date` is computed at ingest when the run names its
+// standard materials; the method's `expired_standards` makes it
+// mandatory (the default) or advisory, not this list.
 type CheckName string
 
 // Concentration A nominal concentration, in the analyte's unit.
@@ -965,6 +1028,9 @@ type Method struct {
 	// Description Empty when none was given.
 	Description string `json:"description"`
 
+	// ExpiredStandards Present, as `advisory`, only when the method makes the standards check advisory.
+	ExpiredStandards *MethodExpiredStandards `json:"expired_standards,omitempty"`
+
 	// MaxCurveAgeHours Null when curves do not expire.
 	MaxCurveAgeHours *float64 `json:"max_curve_age_hours"`
 
@@ -992,6 +1058,9 @@ type Method struct {
 	WeightingOptions WeightingOptions `json:"weighting_options"`
 }
 
+// MethodExpiredStandards Present, as `advisory`, only when the method makes the standards check advisory.
+type MethodExpiredStandards string
+
 // MethodList defines model for MethodList.
 type MethodList struct {
 	Methods []Method `json:"methods"`
@@ -1011,6 +1080,10 @@ type MethodRequest struct {
 
 	// Description Free text for people; no control characters except tab, line feed and carriage return.
 	Description *Text `json:"description,omitempty"`
+
+	// ExpiredStandards Whether a curve whose run used an out-of-date standard material
+	// fails (`mandatory`, the default) or only reports it (`advisory`).
+	ExpiredStandards *MethodRequestExpiredStandards `json:"expired_standards,omitempty"`
 
 	// MaxCurveAgeHours How long after acquisition a curve stays in force; no limit when absent.
 	MaxCurveAgeHours *float64 `json:"max_curve_age_hours,omitempty"`
@@ -1041,6 +1114,10 @@ type MethodRequest struct {
 	// WeightingOptions A method's weighting options; a field left out takes its default.
 	WeightingOptions *WeightingOptionsInput `json:"weighting_options,omitempty"`
 }
+
+// MethodRequestExpiredStandards Whether a curve whose run used an out-of-date standard material
+// fails (`mandatory`, the default) or only reports it (`advisory`).
+type MethodRequestExpiredStandards string
 
 // Model `linear` y = b0 + b1·x; `linear_origin` y = b1·x; `quadratic`
 // y = b0 + b1·x + b2·x² (ISO 8466-2).
@@ -1118,6 +1195,14 @@ type PredictionSample struct {
 
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
+}
+
+// PreparationStep An aliquot of the parent made up to a final volume, each volume in mL with its tolerance ± (rectangular).
+type PreparationStep struct {
+	AliquotMl    float64 `json:"aliquot_ml"`
+	AliquotTolMl float64 `json:"aliquot_tol_ml"`
+	FinalMl      float64 `json:"final_ml"`
+	FinalTolMl   float64 `json:"final_tol_ml"`
 }
 
 // Problem RFC 9457 problem details.
@@ -1319,9 +1404,12 @@ type Run struct {
 	MethodRevision int        `json:"method_revision"`
 
 	// Operator Null when none was given.
-	Operator  *string     `json:"operator"`
-	Samples   []RunSample `json:"samples"`
-	Standards []Standard  `json:"standards"`
+	Operator *string     `json:"operator"`
+	Samples  []RunSample `json:"samples"`
+
+	// StandardMaterials The standard materials the run named; absent when none.
+	StandardMaterials *[]string  `json:"standard_materials,omitempty"`
+	Standards         []Standard `json:"standards"`
 }
 
 // RunFormat The content type the run was posted in.
@@ -1366,6 +1454,14 @@ type RunRequest struct {
 	// Operator Who ran the instrument; an identifier that may also hold `@`.
 	Operator *Operator         `json:"operator,omitempty"`
 	Samples  *[]RunSampleInput `json:"samples,omitempty"`
+
+	// StandardMaterials Codes of the standard materials the run's standards were made
+	// from (see /v1/standard-materials). Each curve of a material's
+	// analyte gets the check `standards_in_date`: every material and
+	// every material it was prepared from within its expiry at
+	// `acquired_at`, and prepared before its parent expired. The check
+	// is mandatory unless the method makes it advisory.
+	StandardMaterials *[]Identifier `json:"standard_materials,omitempty"`
 
 	// Standards One entry per analyte and level.
 	Standards []StandardInput `json:"standards"`
@@ -1505,6 +1601,72 @@ type StandardInput struct {
 
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
+}
+
+// StandardMaterial defines model for StandardMaterial.
+type StandardMaterial struct {
+	Analyte             string               `json:"analyte"`
+	Code                string               `json:"code"`
+	CoverageFactor      *float64             `json:"coverage_factor,omitempty"`
+	CreatedAt           time.Time            `json:"created_at"`
+	CreatedBy           string               `json:"created_by"`
+	ExpandedUncertainty *float64             `json:"expanded_uncertainty,omitempty"`
+	ExpiresAt           time.Time            `json:"expires_at"`
+	Kind                StandardMaterialKind `json:"kind"`
+	Level               *string              `json:"level,omitempty"`
+	Lot                 string               `json:"lot"`
+	Preparation         []PreparationStep    `json:"preparation"`
+	PreparedAt          *time.Time           `json:"prepared_at,omitempty"`
+	PreparedFrom        *string              `json:"prepared_from,omitempty"`
+
+	// RelativeUncertainty u(value)/value from the certificate and the preparation.
+	RelativeUncertainty float64  `json:"relative_uncertainty"`
+	Supplier            string   `json:"supplier"`
+	Tolerance           *float64 `json:"tolerance,omitempty"`
+	Unit                string   `json:"unit"`
+	Value               float64  `json:"value"`
+}
+
+// StandardMaterialKind defines model for StandardMaterialKind.
+type StandardMaterialKind string
+
+// StandardMaterialList defines model for StandardMaterialList.
+type StandardMaterialList struct {
+	Materials []StandardMaterial `json:"materials"`
+}
+
+// StandardMaterialRequest defines model for StandardMaterialRequest.
+type StandardMaterialRequest struct {
+	// Analyte Required unless prepared; a prepared material takes its parent's.
+	Analyte *Identifier `json:"analyte,omitempty"`
+
+	// Code A name of an instrument, analyte, method, level or sample.
+	Code           Identifier `json:"code"`
+	CoverageFactor *float64   `json:"coverage_factor,omitempty"`
+
+	// ExpandedUncertainty The certificate's expanded uncertainty U, with coverage_factor.
+	ExpandedUncertainty *float64             `json:"expanded_uncertainty,omitempty"`
+	ExpiresAt           time.Time            `json:"expires_at"`
+	Kind                StandardMaterialKind `json:"kind"`
+
+	// Level The calibration level this material is (calibration_level only).
+	Level       *Identifier        `json:"level,omitempty"`
+	Lot         *string            `json:"lot,omitempty"`
+	Preparation *[]PreparationStep `json:"preparation,omitempty"`
+	PreparedAt  *time.Time         `json:"prepared_at,omitempty"`
+
+	// PreparedFrom A name of an instrument, analyte, method, level or sample.
+	PreparedFrom *Identifier `json:"prepared_from,omitempty"`
+	Supplier     *string     `json:"supplier,omitempty"`
+
+	// Tolerance The certificate's tolerance ± a, instead of U and k.
+	Tolerance *float64 `json:"tolerance,omitempty"`
+
+	// Unit Required unless prepared; a prepared material takes its parent's.
+	Unit *Unit `json:"unit,omitempty"`
+
+	// Value The certificate value; left out for a prepared material.
+	Value *float64 `json:"value,omitempty"`
 }
 
 // Text Free text for people; no control characters except tab, line feed and carriage return.
@@ -1937,6 +2099,9 @@ type CreateRunJSONRequestBody = RunRequest
 // CreateRunSamplesJSONRequestBody defines body for CreateRunSamples for application/json ContentType.
 type CreateRunSamplesJSONRequestBody = SamplesRequest
 
+// CreateStandardMaterialJSONRequestBody defines body for CreateStandardMaterial for application/json ContentType.
+type CreateStandardMaterialJSONRequestBody = StandardMaterialRequest
+
 // CreateTokenJSONRequestBody defines body for CreateToken for application/json ContentType.
 type CreateTokenJSONRequestBody = TokenRequest
 
@@ -2017,6 +2182,15 @@ type ServerInterface interface {
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx echo.Context, sampleID Identifier) error
+	// ListStandardMaterials All standard materials
+	// (GET /v1/standard-materials)
+	ListStandardMaterials(ctx echo.Context) error
+	// CreateStandardMaterial Record a standard material
+	// (POST /v1/standard-materials)
+	CreateStandardMaterial(ctx echo.Context) error
+	// GetStandardMaterial One standard material
+	// (GET /v1/standard-materials/{code})
+	GetStandardMaterial(ctx echo.Context, code Identifier) error
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx echo.Context) error
@@ -2526,6 +2700,40 @@ func (w *ServerInterfaceWrapper) GetSampleResults(ctx echo.Context) error {
 	return err
 }
 
+// ListStandardMaterials converts echo context to params.
+func (w *ServerInterfaceWrapper) ListStandardMaterials(ctx echo.Context) error {
+	var err error
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListStandardMaterials(ctx)
+	return err
+}
+
+// CreateStandardMaterial converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateStandardMaterial(ctx echo.Context) error {
+	var err error
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateStandardMaterial(ctx)
+	return err
+}
+
+// GetStandardMaterial converts echo context to params.
+func (w *ServerInterfaceWrapper) GetStandardMaterial(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "code" -------------
+	var code Identifier
+
+	err = runtime.BindStyledParameterWithOptions("simple", "code", ctx.Param("code"), &code, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter code: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetStandardMaterial(ctx, code)
+	return err
+}
+
 // CreateToken converts echo context to params.
 func (w *ServerInterfaceWrapper) CreateToken(ctx echo.Context) error {
 	var err error
@@ -2731,6 +2939,9 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/methods", wrapper.ListMethods, options.OperationMiddlewares["listMethods"]...)
 	router.POST(options.BaseURL+"/v1/methods", wrapper.CreateMethod, options.OperationMiddlewares["createMethod"]...)
 	router.GET(options.BaseURL+"/v1/methods/:name", wrapper.GetMethod, options.OperationMiddlewares["getMethod"]...)
+	router.GET(options.BaseURL+"/v1/standard-materials", wrapper.ListStandardMaterials, options.OperationMiddlewares["listStandardMaterials"]...)
+	router.POST(options.BaseURL+"/v1/standard-materials", wrapper.CreateStandardMaterial, options.OperationMiddlewares["createStandardMaterial"]...)
+	router.GET(options.BaseURL+"/v1/standard-materials/:code", wrapper.GetStandardMaterial, options.OperationMiddlewares["getStandardMaterial"]...)
 	router.POST(options.BaseURL+"/v1/tokens", wrapper.CreateToken, options.OperationMiddlewares["createToken"]...)
 	router.DELETE(options.BaseURL+"/v1/tokens/:id", wrapper.DeleteToken, options.OperationMiddlewares["deleteToken"]...)
 
@@ -5849,6 +6060,20 @@ type GetRunResultsResponseObject interface {
 	VisitGetRunResultsResponse(w http.ResponseWriter) error
 }
 
+type GetRunResults200ApplicationFhirPlusJSONResponse map[string]interface{}
+
+func (response GetRunResults200ApplicationFhirPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/fhir+json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type GetRunResults200JSONResponse RunResults
 
 func (response GetRunResults200JSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
@@ -5860,6 +6085,46 @@ func (response GetRunResults200JSONResponse) VisitGetRunResultsResponse(w http.R
 	w.Header().Set("Content-Type", "application/json")
 	w.WriteHeader(200)
 	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetRunResults200TextCsvResponse struct {
+	Body          io.Reader
+	ContentLength int64
+}
+
+func (response GetRunResults200TextCsvResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	w.Header().Set("Content-Type", "text/csv")
+	if response.ContentLength != 0 {
+		w.Header().Set("Content-Length", fmt.Sprint(response.ContentLength))
+	}
+	w.WriteHeader(200)
+
+	if closer, ok := response.Body.(io.ReadCloser); ok {
+		defer closer.Close()
+	}
+	_, err := io.Copy(w, response.Body)
+	return err
+}
+
+type GetRunResults200XApplicationHl7V2Er7Response struct {
+	Body          io.Reader
+	ContentLength int64
+}
+
+func (response GetRunResults200XApplicationHl7V2Er7Response) VisitGetRunResultsResponse(w http.ResponseWriter) error {
+
+	w.Header().Set("Content-Type", "x-application/hl7-v2+er7")
+	if response.ContentLength != 0 {
+		w.Header().Set("Content-Length", fmt.Sprint(response.ContentLength))
+	}
+	w.WriteHeader(200)
+
+	if closer, ok := response.Body.(io.ReadCloser); ok {
+		defer closer.Close()
+	}
+	_, err := io.Copy(w, response.Body)
 	return err
 }
 
@@ -6305,6 +6570,456 @@ type GetSampleResults503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterialsRequestObject struct {
+}
+
+type ListStandardMaterialsResponseObject interface {
+	VisitListStandardMaterialsResponse(w http.ResponseWriter) error
+}
+
+type ListStandardMaterials200JSONResponse StandardMaterialList
+
+func (response ListStandardMaterials200JSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials400ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials401ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials403ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials429ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials500ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListStandardMaterials503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListStandardMaterials503ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterialRequestObject struct {
+	Body *CreateStandardMaterialJSONRequestBody
+}
+
+type CreateStandardMaterialResponseObject interface {
+	VisitCreateStandardMaterialResponse(w http.ResponseWriter) error
+}
+
+type CreateStandardMaterial201ResponseHeaders struct {
+	Location string
+}
+
+type CreateStandardMaterial201JSONResponse struct {
+	Body    StandardMaterial
+	Headers CreateStandardMaterial201ResponseHeaders
+}
+
+func (response CreateStandardMaterial201JSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.Header().Set("Location", fmt.Sprint(response.Headers.Location))
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial400ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial401ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial403ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial409ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial413ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial415ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial422ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial429ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial500ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateStandardMaterial503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateStandardMaterial503ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterialRequestObject struct {
+	Code Identifier `json:"code"`
+}
+
+type GetStandardMaterialResponseObject interface {
+	VisitGetStandardMaterialResponse(w http.ResponseWriter) error
+}
+
+type GetStandardMaterial200JSONResponse StandardMaterial
+
+func (response GetStandardMaterial200JSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial400ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial401ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial403ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial404ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial429ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial500ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetStandardMaterial503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetStandardMaterial503ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -6942,6 +7657,15 @@ type StrictServerInterface interface {
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx context.Context, request GetSampleResultsRequestObject) (GetSampleResultsResponseObject, error)
+	// ListStandardMaterials All standard materials
+	// (GET /v1/standard-materials)
+	ListStandardMaterials(ctx context.Context, request ListStandardMaterialsRequestObject) (ListStandardMaterialsResponseObject, error)
+	// CreateStandardMaterial Record a standard material
+	// (POST /v1/standard-materials)
+	CreateStandardMaterial(ctx context.Context, request CreateStandardMaterialRequestObject) (CreateStandardMaterialResponseObject, error)
+	// GetStandardMaterial One standard material
+	// (GET /v1/standard-materials/{code})
+	GetStandardMaterial(ctx context.Context, request GetStandardMaterialRequestObject) (GetStandardMaterialResponseObject, error)
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx context.Context, request CreateTokenRequestObject) (CreateTokenResponseObject, error)
@@ -7772,6 +8496,100 @@ func (sh *strictHandler) GetSampleResults(ctx echo.Context, sampleID Identifier)
 	return nil
 }
 
+// ListStandardMaterials operation middleware
+func (sh *strictHandler) ListStandardMaterials(ctx echo.Context) error {
+	var request ListStandardMaterialsRequestObject
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListStandardMaterials(ctx.Request().Context(), request.(ListStandardMaterialsRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListStandardMaterials")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListStandardMaterialsResponseObject); ok {
+		return validResponse.VisitListStandardMaterialsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreateStandardMaterial operation middleware
+func (sh *strictHandler) CreateStandardMaterial(ctx echo.Context) error {
+	var request CreateStandardMaterialRequestObject
+
+	var body CreateStandardMaterialJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateStandardMaterial(ctx.Request().Context(), request.(CreateStandardMaterialRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateStandardMaterial")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateStandardMaterialResponseObject); ok {
+		return validResponse.VisitCreateStandardMaterialResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetStandardMaterial operation middleware
+func (sh *strictHandler) GetStandardMaterial(ctx echo.Context, code Identifier) error {
+	var request GetStandardMaterialRequestObject
+
+	request.Code = code
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetStandardMaterial(ctx.Request().Context(), request.(GetStandardMaterialRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetStandardMaterial")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetStandardMaterialResponseObject); ok {
+		return validResponse.VisitGetStandardMaterialResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // CreateToken operation middleware
 func (sh *strictHandler) CreateToken(ctx echo.Context) error {
 	var request CreateTokenRequestObject
@@ -7898,373 +8716,409 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L3dbxtJli/4r8Syp2GqOkVTslxlSxjguvwx7dt22S25quZu0c0MZQbFGCcj6IxMSewqL+5iXu593ZcF",
-	"9nU/3meARWOxb7XvO3/D9l+yOOdEREYmk2SSllzVc91Al0UyM77jfP7OOT/2Ej2bayVUYXrHP/amgqci",
-	"xz9PRZEvHk0KkcOnVJgkl/NCatU77p2JRKvUsEKzKy4Ldi4mOhcsh1ekuhj0ol4u3pcyF2nvuMhLEfVM",
-	"MhUzDk3NpJKzctY7Hka9YjEXveOeVIW4EHnvw4cPUW/Ocz4ThR3G4zK/FM+fLI/hzVSwBH68Y5hMoUsJ",
-	"X895Me1FPcVn2HC6dih/l4tJ77j3m7vVKtylX83db799/qQH43meitlcF0Iliz+IxfJAHrEkk0IV+8lU",
-	"G6HYO7Fgfc7gfSYN4+xC65QlUy0TsceKKS/YjL8T8AssmBTpSMEQhSmY4RNxwowQrJgKpuci59DLHcOC",
-	"Pgcj5WZL+1XNNxjrPgy2tu78+oVQF8W0d3xw+CCCffCfYdWLQuTQ5p9+eLT/3/P9Pw/3Hw7Gx/tvfzyI",
-	"Dg4ffPi7nt8uU+RSXdDiKFPk5Uyoon2HpP+dyVSoQk6kyCPGDZtrU4iUXcliymRhWF4qs2oXq0523c3n",
-	"vnMc9mmpVp2pvFS3e6I+wPtmrpUReMK/5ukpbT98SrQq7Gry+TyTCR6Au/Ncn2di9rt/MjDQHzv2+Jre",
-	"ok7rU33Js4nOZyJlZqEKfh2xq1yrCwZbzHTOOLvkWSmYLgsjUzqP1Owxm7l3R+o/nr36JmKc0ZFgV1OR",
-	"C8aZKmfnImfnItPqwkSMK1aqd0pfKTaRIkvhFXvimM5HKufqQrBLqTNeCPz1fSnyBfO0gO5NqoVhShcM",
-	"lmYB9+BD1Hus1SSTySddPTwowugyT4D+mIIXgk10fi6BKuKPdKH7nIgUy8WlFFciZTzLBU8XEeMjRT/B",
-	"FdBlwTibyCJi3L8MP9DC85lgsrrbSGNMIbOMSTWC6V9Miz27Hs9wGKlQn3pBCv1OKJbx5J1h4hK2zyR6",
-	"Llgm8aZLxeLrfXd19vE3Ew96SEXgJPDsaZ7r/FMO23XMBPQ8YDCNc50umOELw7TKFmzUk7WHRj3GVVrb",
-	"ZCAWH6LeN7p4pkuVfup1B8qU+uNYXRJxLU2BI3vNF5nm6RutX/D8QnzqAeKKiutECHs7jMgvRX7HsESr",
-	"ibwoc5GyTM4kjfZM5JcyEd8qfsllxs+zTz7glBf8nBvBEq5gJc9hr3kyFSlT+iryc5CJABZvpmVRAPlL",
-	"9ZWKkKD1J0hDr3JZINOXBlkhV4mdvYEWU3vGzkXCSyOQD/q+pRkpIKxcpecL4vlN8Wzfy2dtk7VP3w0k",
-	"OZzvG61fcrWwTMf8ImTijvG3JwfaKQ3TlyLHFbAn4aam+63iZTHVufyz+KRX86U0RqqLqGKXkWeCOgeG",
-	"oN+JlJ0LnoucVqUx6e+//37/UVlMhSpglGJZYIm/xrdjYhVcsRhpVMx4UeTyvCwE658+e8y+/Or+cG+9",
-	"WN6U7Wjp5rlOhDFwCZ+qQhaLT7mC34ss27dSilTzsiAp4DwX/B2Kz2UmmJ6E1/HEroCJkSwaBtd2pPRk",
-	"IlQKVxTFj4qCl5mwbPNbZcr5XOeFSF+KVPI3uB6fWqTAK3HHsMfU6z6MAi4HUCGtGmoB40ki5oUZoExr",
-	"+4AhPMLvgdg8h2XDsaephHd49jqHBgopTO94wjMjmiOp3mbFNBdmqrPUnOBK4hgyMSlALmQFqjEwJKEu",
-	"pBKopkx4mRWsb6Yk7GUZsX6t8MGZKKY6xaM4D8bxY++cJ+/GCc+ScaavxoXORA4jGM9JsBPXSVYaeSle",
-	"Ou2Rzi+cDl70jnupLoFRRKDm0AMHw2HUpmySbApbXvU5k2o858aMJzlPaBl+XNt255Y/zUymeqZNIlJu",
-	"CpnIYjHm2Xy68TQ+woc+RCThwKZv+R7IemM9GU/ktm/OuEp5ofMWffrxVIAEeQXaNJtwmZU5/UtH7VLk",
-	"qUyKE/ygi6nIDeOgdKSX0uh8gXpbIWZm01iwn2/4TNB4rp/TSwfV+vI856BDl0q+L4X9HXbLTkBkW8/6",
-	"epyb2z0KcJQzcSkyY5V+evR++N7hsuWFXszH5n3Jc2KUH3H+dVlkUuTjROt3Zpze2mRdP6YoUcH/s7i9",
-	"vvJSmS33+1LkcmI5xjIlqB/7n3775CfQuoNXSPjjecr6zx9/d/fx4+/22IwvGNBWxi+4VKB8FGaklJ5J",
-	"0FBQZx+wJ5YKHw4jxkESYt+esaevH7Gz7/cfHH3JXiIVZg+Gw+GTkUp4Js8tRwm7pyuW8XOd41W9Yyz5",
-	"ZkYUBjpm+spao25hxT/4b/T5P4mkgAWtWNNrnclksSVne4paqWdqwJcmOk9E5PiWqTjW1ixqeaofz3C2",
-	"YSwd3l7NJjq83MIkOrzVyiI6vFdjENvT8xoFbyHXnUZQI9Zd3qiR3p0obBdKusVbDbrY4c06levwwjY0",
-	"DmRconNZpsEYBlpyK8UzrJ8GRGw1+UJRcuMwP4Sazw/hRjWORtuBXXlvVl/HaC2xWE8ImuekfhKX72Ft",
-	"z9q3fvkYhRds7R6+baPC7ng0HSFGXihsCHQHXOBBby0PGA7uhzxgMBwOD1rO2CPFs0UhNlL7Or0mi313",
-	"vwAKesVGKz480zxQ2JV9v3XFylQWTy+dHtl9DhVzaKjGoAhfccNSrUTExOBiwOK8VIMkF7wQaRyxGK3L",
-	"g4ksap/5fJ7ry/CbXMAwRRoPll08EYxAt7gAgdA63ZsMv6ibc2iovZ0GFeWF2C/kTLQ9m4qCy6ydfsx5",
-	"XsikzHhuIiZVkpWo13NnYc/RtMSNVoNWj1W4bbzouQlGPX/9bO8r9/GFvthyF8Wlc7B24mTBaVliZY0Z",
-	"2JbbxvqYlzA8s+LwkAHbAIUFL6VKrZnh2FoV8A47ITOw01qyPFJJLguRS84muZ6xeXmeSQMW0otSpvBy",
-	"i/jIkyQXqSyQ0ETg9rwoM/gR+7fC5dmr12hZYPNcJCIV2BRtLjtfoGuIZ3BlUzYXudFqpLz/ORPcCOsf",
-	"dSu9dLpmUjldb1lQQCliy+2FLSwLkS6v9DN4HLxiZP1IoHGW6DJLmbUru3dxtRSLgReINIbNwL5wZWI6",
-	"kjG5Ja6mi+Bon2udCa7q12ZpzmhTbb9QgTiMRwFGBIwHbYonTJVZ1pzBlMNRUegovMK/Cz+RdooPrZAl",
-	"n/SC9fJe87gKUPMD+5F1oKNZnUaUisR5Kb2BAI0DV9IIO7HQQrC8eF24RU3EpJ0KVjtojFwxrVPJhbc8",
-	"0q0rKqtZomcCr1MrBTVwb0ACWbGPCCBwz8DWzAQ3eGdRLQy38qM3rJ3/VSN0J84vU1TdkrrsYZdqLdmt",
-	"1r0NfQE/OlYU0K45aojHLK6kPeB5JO7F0UjFgagHvzSlPPjOC2pAp6RW8J0XzbCRXMAvl2LsRNcxmeAj",
-	"FntJDd8SRqYlz8YgrcEXViQz2MpMK11oJRP4Jc3lpIgHLPiW9f2aARG0B2aP2U1A05jzJxcaCAucm6TI",
-	"Fsw3Qh4WWKUrnb8Dpolu94HrED1ObpcYL5hUF8IUx/iKElcebmMyPa94A11LrvA0nz3xBnn0WVfwD/iV",
-	"kxx3x7DDIZtpUzAg8aoYKSeVUB8mqnzf3wtTXIANhMQUvDiG9Y0QIxX/w9M37O7lwd0iFyo18d6APa9d",
-	"dVaqTBgTko5MGjReMG5Gyi9qZO8ivOzt23hVJiBTgHCj2MGQNcY5UuhkjVw/1EC1VX0k6vRtLsi7wBoE",
-	"c89aUFQ5W6Gb1LWSFn0k1CjsQe1FvVCFWHFKQ3UCnwrOaKU14EjcKYKbCscluKiWREW9632Yxf4lz9H5",
-	"AtPBq/sSoEZ2SvSFmxd+esGTd68mz2Thvvj98vzw+6958u5xbY749emZnyd9tpM9s3N9aqeKPz4P5muf",
-	"pkmf0pzxu1fVxGm8wezxiye0BAQ/gSNM9rM2+uRsc0n4IIiuRLD8lSiVLNppcWgyq/63wVwJsBiJ0lML",
-	"u7jS+0amcIz9U6Svwe3FE3HJMxOx4eA+kJPh4OHDhxtVuYcPH9aUufvtoypynb0A5mC2tN6dTcXVlOco",
-	"jUIj5Cg2rP/87BX76sFXw/3DPcfkPKQGXOmZVGLQwtPaVK3xVF5MO5o+7BuZvur4Au6/6PjwFc+VVBfb",
-	"DMi90nVEDS5uh1dvpzGQ2qyj2qK1cm7aqtMya+XdFXEHcajvP4qC8WwQsceZVAP2eCpmA3b4FesfPHxw",
-	"sMeOHt7bO2bxwf6hiUcohxJW7VwstErZz/9yCHyob8e9dwKP3jMxOi/9M/fY2ZMTFh9CI6y40sD6lBFJ",
-	"CZTDPeYZGbaI5+2Exaf7R/QOC16JoPmR4uf6UrDf4fPOy4yCKILhrthf/8v/dEg9H+0fmJhNdJmz5Z5H",
-	"ynd9EHZ9MLyOWSFU7RXrW8WnEaynJ54r15kLLFkv6sFy9KLeIX2C6fSiHowHfhtedyTtsKkH1AL8dc/9",
-	"dei/Oz1yfx0d+OegfTgZZW7aDAuv5vx9KQDhZkQBbNbonPXhGn95VObV1Z4D5VAXaP8LoK33Dw47QVvH",
-	"+29/93dtUjYCjrf1mDOyspBUMGDfO3UpFxwGaeo6n30YzCVZBtJfosVkIhMpVIGiYZ1Jm5iUwERf8lyC",
-	"bBujx1PM5sUiIsmPbrQhI4wS0Dp0g88B2YtYbPUiVC1j8KfGkW0XHa6oXI4UKJd4ZJrEkcjEmBetWo2d",
-	"bqlQH3RP11nGOosPryx8S78lgSFjrXbmnoN3cE7b+Q7a/AbhzixP/LliM52KbF+8L8l+rfNU5McMOA7P",
-	"2Q/nw4idH7yN7BdjncsLqdgP+N37kqc5B13NPhex88O3Nf91NzeFtWbcaxv+aiHgcQvrh008J0k9hc9O",
-	"MfUiQSdre9Srjmpbv+43NuNFLq9dx+FaR8z8/K/9f/z//s///P0/7v31f/y/f/6/IpbrKwNiU/AcrXdt",
-	"yW5s7dYvLJlZ118HC+/lxt94lTJT6K1uRjpZ7sGJrCwVF7kQBlZwkguR6lnEFPAYNg9MCIELioA640uR",
-	"m1ZxFaMqAn8wPU9kxauGMDeEKpPZGZ+/ezAYDobtJmTrHNZq0zV86h/8EPUmGb8wbSa1pDCMnyMAiQZC",
-	"w7MmIKWdBagzEuSZLJ5l/KLt/k8Fv5TCFKSSbWoIlZyzKc/RQCTTbhEBURjg0Gq88z7F+lI8kaaQKino",
-	"/hqnUkxIj1gXZ2PNMxtXxsrpcBtQe24dHv00BhPt6kNFDzH3UPv9AN5eG/pB29CR5G4a+Ut86EPUU23X",
-	"x3LlasFYHw8pqERaCaeglwr1842LOdeylT8Q3sCjOKw0ELnp6py5XiN2ketyDnjQhSXHUhEfNbLiLN3B",
-	"TbC0r2FYbae65oRuYi4hlkCkdSoLnKAQOSiyOJh+SbqsdeHWuNvejhZgNEZtmtcpPvQhMFWYdA199Euf",
-	"iktJQzf9xd3rvcgJzf/v/3rF/p4pdoXzZibhmdh1Auij2DgDeso+D3dhrJHE8yx7Nekd/9CFZLxtSqCv",
-	"c2FwpxTjinmC6+9bFFw4SZ7DXNhjSAZn8v2PuxOthpDaEiXoFp8eWMHm0Y+4dLY/lnmbghdlt1tyRo8G",
-	"7t/6NL59/O1LluhKrapMNjWTjjfgLBFIJ++MO1Gu7+zTnoJZdrbxPfsY2AHwMI8TrlIJwsVK0uSfAKtu",
-	"onNhDa8xLwtNagd+BmXiGgg0Noz+1ky+E6yPOgicOrKHwhIF4sCKl/c6kzGiRo/dKNtomZurVuAKbeU/",
-	"v9dXtnOCiuIlT634ouCkZdKAXKOZKWfwj3IhrXFAZ9qFGz+r7nf4e//K8kV+4+LsBCthTH00ICjBbHQp",
-	"2qTt9tAtRsg4sqlwNGM0gYv0xkdl+06mWhthkPwXU2EqXTdiPDO6chlazk9ngCs0hpwwfo70ynqjqoNo",
-	"NeVzQecxbczKT/fG5xUMlZt3xNiw8z+LXI+nXKWZ3eTlwwWP1ImBoRAPG+bJrkQOJo15YZ3luU7LBK6R",
-	"VBOpZCHc+Twhrd6tixKM59qIzVAGikslAu6ltWXZLKoH0zq129I+J1uFp7p99dtojBPZ2+5kcxkbmvUy",
-	"N6npkHV2jzpR3b0BHXinSaD0etHMWwS85OsEjoq+eq4R1cwdNWUvsEYsKVOt9k8MX1fPdJ5sNio1TC4r",
-	"/PUzTf40PKSoB3VXJs+5ka2AkIV1ppOAYAJkrFTgLkxNK/HbyTTjDGybOXM5m/F8QSrkXObCrNa3JWhB",
-	"/JIoUiJAjK5uNCCXyU/B+IVo+Ai0EisXcIXMF6hm3BTjED7XnS59F77VTpoyjk79sH2wGurcsydexHW/",
-	"fpunY8nOjzvgTkNEMKhghdumFez1ynP+Qppt8W07H6AtbHuNo9QUIJS4LsbJCms0Wamd5AePsnl1hKwO",
-	"AauFXw82H5m2rYA9CEfRZa1Jt9vOTP1KiSVltErAkEp+obQpZGJOGA8+IjDMHzFZNCKMWV9pMgfpHFh5",
-	"rnWBYgG4pPcDl7R9gLyhQ3zEuaVJRVgXFgZttOmrNfcrTgr7JT7rdZ4dNbqk6dvtZPpEhK2kYN/2lzZ2",
-	"7MwC7egi0tt2bNobslrNTDm/2HXMHmKAe9kOAD8YDn/+S7+xqWivrC313t3ax531cZIZdp4PSW8d9z3A",
-	"W4/DntsTDmQL5l4wFLyPL+w4U5K3VhlzmqYOVH9O2JDusztqNwEDo7PVvDfBUvqh+kMcbNOKNQwO5tLt",
-	"ipYIROs5DC7USoJ65i0GTVsSIk8xxceAPaqAUOhHm1NY8ZhsP/GJxyHDrxOgdIPA/Vp/uhf1HJwIh00o",
-	"7K64mmrMr6nVU9do8NOjqv3g21PflZ+8ZY/bgtNrTsEb8PTVvCrd2gNPpkjHlcNvGademZ7wIesukOSP",
-	"BXxiiK7TuUeP1e0USz03BYkbs/dvZ2u/SWP5huikzTRzWwvi7ka6ZSvbjmYyq9V3NCF8OrU71G9bVNT6",
-	"uV+jsrZRvCcyK9ttZe4XNsG4CMy0JEHRxDBSqayyy/oezvj3lhwSBuf/+Z9ZapvYO2EHxGPI2DPYOU60",
-	"A9ztaehj3EIm3mQ4H7RAIWxAzEeFuKx3GTnhnDAkNBLHqU2NKm1BrldLfrmgxBaiLW5xBY+v3mk7YEse",
-	"J7C1jCkuBzrZqFhXj7b8VPObdEriF84gfD8wENkeG2MN4oPar5I/eN00shVb0j1GrbZXy/qdOzmW42EH",
-	"ETvYBwBV2upTPLHJutrebF7f2qVc76dtPTZrFzDIgrfFElYXqZM1oLFdNT/SfTun1dFBzWPczdLzRlwX",
-	"LRYesroJQuHbwP5cqndg4jnXxZQJBXlX3CpWFnWInTWEqAfgJfxtEQA8F/ZVL9XX7tLNjNe5z6G3oKPG",
-	"jjcvVtveO+RFCzQU+I+FefAmyMOEKA8Wp2hTUBakMSYmGh8TNBS/Y5jDhs00Rt9wxaY8m1ThiwXPnAPY",
-	"BhbUcR8xYEgn4mrsL58ZT3Q+Nocx4FDvmj8dkjcGXTbk9Bop6hmHDQFTFEjgFw+HUTNRYqBK1UNch262",
-	"TrIX9VqH1VGJsMv/xDaN8JXvXcP2x2fi6tQ3/0znZ4eoNvxe8KyYbnlXK4HPzUq/owOSLjoOmfp99Yee",
-	"G8Ipvdw8fbartkMX0NOWc6dsYCtXQfRK5Jy+kd2uyGHmcvBgzzPRgKF+edQJhfq2mWt1GH1570MrLrXK",
-	"tPo6F3Dwd6aYgQbWne1s8EZQth6rF1vfAZN0IU4gaV6Tk3STkur4xbVaQvUkaBa4J925QrWkZ/hmMyXQ",
-	"BsbQDCv24r0bR+sxtJjKLQXWaqIelVkhK0KjGaGQ43NdqjSMKI1YnOkriykG/hF7lHCL/ZXebrdDro5M",
-	"6G6F7JJCRF/t1EtTAsGABRvE4KRYN7+2DXrBC0HHoVsWtV0Q03RAkHe4aE2Km4YbgdFx8lKku12ene55",
-	"GmiG697yGmQnw0dThA3SH6/HSrkHW/Xu6p5VLbZuZAXL3O6uvZmG8oNTyDKeX2CsLbTYJkQsX6NdHAnG",
-	"Dbg+JrDihiI6pTsgmQIDPO0DPMscztD9vkuqlKYpl0bVusq7xHQ9EYVIyK+pUkDEq8L7HG18V0SY7ybS",
-	"ymBG2XnB4iSXhUx4NkYLRAw5l9152FsX9NzYItdKsj6gD4LNDg4eHN3bP2TuHZcr23kJi2aw3/U42dUF",
-	"VZvcLsNxaxGxxc6jWJWQA8AvxVQsCODiFhcdfVfTBaz4YEV+D2GjyNrzEoSzskomo5dgmDQ/WNVdsw1k",
-	"usWV+Pzx79kfD5kfHJ2/iN0b3Pv5L//2z3fPdu7s/crO2k58xA6GH9WhkRcz3i6u+ZPxb/+M98odDrpS",
-	"dVhWjO2MESUA4kPH2I/gre4q5xm89DW+0w6F+Ld/tng4BdYKi0Lba+LIqgtOESyrcIn9q6lMptSivSME",
-	"GD6DhFLLkkPao21cuo/RKrqxfMjXZjh46U3+W4kYLtnBxowyzbx5IB5ADq6xEdlkXCGX242jsJZw1pZA",
-	"fdiGYdDIPjVCgEWIatwXC2EosFPCBkz22hNvWC6+RXoceqE9XCvUF7p46zfH8WDovjXBgpxmX9lCibF9",
-	"nC86p1Gyr9R7X0FKg+aWjMkNLCEM/0JeivamIM0YXpcxvxDjqS7bQN3feHZqb1aqLRRkLvNdcRZbRnTY",
-	"RCBLE3DuVRrZWKrxxOHulo9ddxfaLm6i4K2xnneCOPm3X9nnVyRZCZxK4dZswm66UTTwkf72RSE5Wb2W",
-	"7cekiZGsTvxqYrcDWoyoTndKQR1tTKLlml091h0NLTvQZ1I1u5HnMDHSPJcqkXNuDY62ug5neUm4qxlP",
-	"hQUnICU7X1TOrgiNzw63UDgYqM/AiJM7Zi2EPReT0gjDTJlMK+gDGkCPDg/3BuxMFEwWVOXgyic/qiUF",
-	"g3xflo8AjaKcXqzQQFnAln3zXKNm2dlg8a9zlG7CTGiLerus8dCiDgcP7w9aKPhmw3xHSg2yOZTfsa7b",
-	"0O/jitKYAvKJOXsd2OlIAr0Br+2Drx4cbUxVvRPZ725nWMMP2i8SRzQI6Pm0PniV+BWHO2HPNtyUcxFG",
-	"UzlrZ/26rBB2fiFeYqlKO0Np4xv+erXSRLdvjWIUFAYYswX7e3Y+ZL9j5wc//+X6hMW1+ED7u/3JB8HH",
-	"I1V/D/49/Pkv1z//K2V4eXD05Zf7h41sSdRyL7J/2C56Uc+329GvgHN64VoLPr1yLeJ3f6ya/RD1XmEl",
-	"hjbc8PdTzXLr4KncCCfoVfBn1BWDW1DEDObgi/9D3HAldC3WVvcl/Ad0JhwcftXuTfhYH8LfpmF+nTk+",
-	"XJEK+LmbW+Vm4iTWJXAia389fwNos13zMyDz6I7Uoud3wmvRq9uDsyg36S4n5RTfbFMPV2DH2jD544aF",
-	"GV9tLERzcg3R2s1gA5x/aeBb38R15so6Pp5EASBKaR3ntZTnE3kb5fmsEP1WHXX2RPjmSrso+lpSQdaP",
-	"+excXpS6NGN4P941LDx0SHQ42SuyRsSYfWmMY4MMO5imqfooroucz6n6IHympzNNKR7dp/fwkxIXCC/G",
-	"vzXODSSLquX6tEeqbxNFhcGBrUsGmnnNYnuMWvtIBckD9yIWl8p6rcbOAQhQgTPMK+IcSvbsVcwl4Xm+",
-	"wBHj1qL7b6RipYuxs0HCNsQIgGAxUVs6kPHepoy67UjYpcdk4PFcK8W554J3xhUottUEXTlDwcihzwsu",
-	"lY/xjSdSZJnI2yN4Z4Kr8ZZof+dSaTOQwDNg0/GojCAQlBOSPd2c5aKRqHEZqTCf5/pazqB9U4u0b3UH",
-	"u0Ig7joFQXBwxYUpsKmbiAKQaUsIQHveyUvE97uwUb+ozT0JqMDyiVhPU63YsB1N/Vtygq53fbqCY8th",
-	"Dc8es4dH979itpAZI+O0WXaMrfL9UAp6NL5j5VibsVX6mPQIecZcaAuPWbp4qxJHPNOINOaZtHXfIlt8",
-	"rKWKm02G3VFEwKk+g5dbyZaqgrZWFmdjc15MW6djH7Bi1brqbvE/7luxe/858JtCs/elLqx9nWg9JbW/",
-	"PxyuzAVdmvZ+fv/mzWtGD2Deihpw834tSefRsDWfTSGLtnyNZ1OdF8xQrIijMu78QCutQ6UvloFW354+",
-	"d7rQwrnWw8Yc7S5zdYw8650Qc5Ef22eO7QmJB72merRevMNf3RwDQP0a70zt4Bz/2PGCvHFpvqWrWThY",
-	"iQQXefv7jSN/zDiDksvsNb0EXE9T1jYNNYXju5lUwtwdlcPhvUThP8J+SnRWzuxX8UjB3Xx89h1KcTE9",
-	"Ie2vx/Z1PhP2cUblTH05ZhII1q+zm9falT11SX+2wAx8H0pNURXpaWGxdkEcMpaMsFi5Ve1jooaqqhZn",
-	"5xlX78I8UEFsayEwJfReQzbObUFGirSuH4WPQUTdOMqpdb2RxQqzbewA2IhapGrg2PtY5Damg4RfgLU3",
-	"ZldTmZE8G5S0Zb6iLVauzkWiEXzex0YM48oASvb+8J5NRBMUfo0btp+qcys7YMdb2HtgMb6377vPr7CJ",
-	"CmdvVtFynjoBz7D+VBduXmaPZfxi31bRKWyZX5DDLzQrtEOzYDkNvkNmLwvGrTayZhH58sjPviUXUrhy",
-	"XRfKd7QeaEtmxBVnDstygEmg7QxBhCL6JHgWHhrSQGvG1xM4X9AWaSoaMZAFFUp2edlBJiBweIWqoFAp",
-	"lzOhgt2dsBgO2VRkaTxS7n5X0Z0uJDOyLUSsVBNZEAZF58yUc5EbkVrECx+pTt0O3DRcJIGv6yGTaf2I",
-	"B2tDka128r2o50beeRuxx9e1Bu2Xp2G79rvvffO4g40ztx3xkGpcmjVmd7oieD1gP5W+ajeeZ/xibESi",
-	"VbrC3THhOR0Idi6m0mZfnucS5JWIcR8HigkbMHKuDiCx5ZlXZDpfWxzSh1gsx0zIgl2IgiwpONN+qbCc",
-	"OKx4BNSiqsyAmn2EDMhTyohSFPG9FVIn7k0LeENbb49UbH/f0eB9JJRlnlnGeVCTDi1svWtQj+s7clvc",
-	"fv0rzXo5XimoEOECkPrWx+IsLVZzJVad6DwnWM3eNsny6+FK+8u/Le3oaaifNUPCK8Xe5bz6qGyNfom2",
-	"s27jIMtst8Jia6zV28QxYuH6NsnA1yLDhNZkeB/wtFZ3DGPm/eeQeMYoTdD33k/dbr7pgK3djLLc0h7+",
-	"Tqo0ZKg009SqE2KcTEE27U6b/S4+9g0FXyLnfOyaBJUBlg5MjMbx1G6O6RonXpENDX6zPMsKvhPcCltX",
-	"riW70IZgTeJ0fqTdx+cs6HZf/LZKVXx51JrdeMvwczyU4xXGSiPer6epqDEIwOtLBauDed5AZqVwSqzM",
-	"ViNRq8fdzS8BI7LJmvD8ucvXXOSl8xHGtvoVDecfhLCvdX7UbtoKWl9mxTMh0k+QB2rLqnohrWzL9MzN",
-	"eKbzFWixtUmiXnNjQLqIjcTk/DYnYi1dFKJWXYzN+n2286p3Ggxwgz/p1KOFtox0sAiHVCQ2Zezcx8Yn",
-	"oikZw6NtMPoO5SKDQo0IebyBcpGJ7JJenFbmiXt6jdj2TS2jWh03uV2CLz+24BJuiChvDDNgM1bL8dli",
-	"OvMXaPCRf5k+n9omPlRf7IIEuInF/9iw5CBIutCuRpdHOVFsonXSVtUvBqv3qnVXykx8J3VWZfnbgrpZ",
-	"orrCmGCRtFJd6uwSlEmpKP5rOynS8bWloHXa6BXFKR2xgtIwzJbMiQjt7X4KK6+1a2a5re+zAQjiSwHV",
-	"SiSuv0DYtJ+Efy8KFrV9u9TWRVzyUgEZryo03EC6o52QH12KS7haK9vWk9gBjW7BpCuyW2+ZjvG0VFRi",
-	"p+WkuhmsgLsUwIzgndoCuNGpMNPWPxGlTcxl52JGkKR1xgswr/ei6vPjs++QRu6a3am7R7DycG/7zhb5",
-	"oPRKyNpH8LztcV2nZQDoajFYUhH4zs25VPMbod7bpWmqpVTyK+fP6WrUeziHanGiKt3negmuVE4P/JTZ",
-	"VJeNM/gbm4vcpT/obtFYc8u73qS2reu+gJ3KeN1AYoRbTne2LXBufZz0Uh6xFau3a7zDDgzyU1LLkPit",
-	"e8vjej+GsvlIjqZFby25W76EQhX5IryE6ONAyGfn6+joY8uY7m8HofW0cw2lrCa08nh5bOctU7dtUaQh",
-	"7q1Vlt7CwrQkyFoTS0dcaMUib86ym67M+3ewivV3AMOtsKDVEE7bVHbZzMHbMj8Es1u7nDsl8/icSoNW",
-	"sXY/ttWvLDbV4U1F6muIV6o6ZRi/umk1bC04f0MF51bcZN1ZfMEvqfIchtcThBZRjTvDnndJhVtX7doV",
-	"NUu9PqrYlLdZLMNMWQIqpK8otZrevFnGoH9UrtGOpGoFPPwN+okdZpThU6AIx69fnVGFeezX3P1Rph/u",
-	"Vk+aOPJAages7lfHoqXq6x46tpZg1wATnwpXbpHCKtNatr0TFjeQrx42sNgRoN1mAoaLfccwmaK/HKeC",
-	"jid0dWByNMNkV7/GDQG+bxyxvV5FroMzbsWrdRN88YbdXUtw810Sj4TOzw3mK1oU62/UOSOYD6y4g2dg",
-	"K90NWzdQvS0iDA6Laz8tV2S2ydN8+AUmUJOqY5Wmrf1udek6lHi6Iea3weI3r1+Izq87GRvXpGX3t8sK",
-	"EIoWf4uqwbr71RqHuJU2QL2b3RTzbXXYZua7Wwu6PEv0XNSQiaUyxxWmE5fmGE65t/0cV8UT0plUHc27",
-	"2NFpqYzDe9IX1MEptY9fofnF+FoK+N0j6gjGW6UpauWf//bPjsxQfqf+6eGeTWPGXrx6wv6+SiaFJOTF",
-	"qz+yv6/SPUGsGaCcoNgg5Vs4e1J5TV3W3cIX0UE4cx/juwpwco2Ur2LrUdETRDDHBI62yWOxeXP3r//l",
-	"f6FUca5xaBvLydPTy5DpyA0K/qmKQcoZCG7GoqP7UA09GzlkepBbyaHs6E2R7p3UCyweN1+IRqpaBR6m",
-	"qAbSaEdw4moSoghlo/D3jlm1lgG4My8VhjU2k+1ijgydCwszq4BdIoN1XVq/Ok4T+u9FPdchZouqPd8o",
-	"Ydfx0PrT9ojar774Gno6S2vfvcAuKdlh/RdXD/eM4EPeWn6DAc47JDhcl4/+NiwHFV/dVKdmBbGqGdE+",
-	"gQFhaVE3uFeDh8Pl/aTWhI9dZHTyL7uqcyFYAXCaKqQM05Uk5FQGaTHnSSFynxay4OcRFqYmzQWobcLz",
-	"XPILoDBFmatGnoVDx9dWJFr402h0PRzuw38fwH++hv88hv88hS8Pno1G1189e/u71nwLb8CbuqNTZwdL",
-	"wC7OyhUsLXgg8AtLQ1BlVmgPoYat4UDe3S8W29NdLV2Z2csAG95CVIPH2zrAMbXP04gkF8WAnU31lWLI",
-	"yODgnjBZsIQrq8Rj3AdarToK+9Rj5HKt2IlsLNCC52VHLwwmjkJOk+tsRTAjyk7SFOjmuAOXBjghTHWq",
-	"ZSIQiW9MKRi3G+4S4GJ1gUpKo3sVCmas76wXR4eHvsimLPYG7LmP5KCEjBb2UmWrykEflFnmDSDni7as",
-	"U6XKhDFhHkIjCsOWMma1Y1W2PPHSotQwhAcGirO3hx1z6yZT1q/eYecSA/b2BuzUgZLwYdsMrEi4gIiw",
-	"kBRzhrsCNcSCG8Sk8ctxNLxnO8YqysFI7xhKXA9DOhoerX4K5B+d26qI7IUAwyVsUNvlZX0cUGQ3LXJZ",
-	"BbrX72647KqK7YfrNAhUfN+Xwv5sQcaOOHQzXYY9t0DGNKWohQhmOG+lERVxO2EGaYC1f5Ft0gJ+eZnK",
-	"ghU5l9ngYwhTtRRH265EexInO5BWWpILdZOyHoSRAGPdmK0M+v3aPbwjFmpDqbTMJ53uAD2zGarhLOnW",
-	"ovgY0l5oBpHGsOMzqdKgFhOQApgTBI4GkVnMLUjkSJqjepwM1VvWkfNRtp0W+LV/ulZVqtNxpAZcIZwl",
-	"ZpmXKmmvuvqmlgz2SqpUXzEIFwtKrBxEw+HQrQhl482InOssBe2SHsDM0bDG7dT60kEut/HAh0jNjf7E",
-	"9sJs1SYEJaL8yQ+qiAcDDJfMnbENZp36HfkIVOlHIURnsNi7mXxVW8mwqGdaDg1ZlKrw61RcSrK99hXW",
-	"gD1YFWrtb9iuCbFFRjFjq9PHuB78FYbOEzCqdJD0cP1w0lSKvtqZsO+V+/86vPDWfgGdZcAsVjvf/BEF",
-	"2QLp0kRjHs0QCOkagb3JQTFaKqYf1hnMdFfbRH3gZ7aX+rfPgz7rvwQGiaWfzvxo6j+80GS9CIjWJ4An",
-	"bRsZJoDitxPNMF0rYqnpkPk3qE6vNM6LPPH4bBeIHFLTmaRMlfiw2Vsl645Dbr38wG6YtPZSBOhEdbt1",
-	"x05jXWIxJYCT2jBprCCuNPMHdVfP+fap5uo8pj2Jh3FhBP5Zh9cP9qyzXNzAwq9lUKFnqOYIchnofQR+",
-	"he6rTmH9DNTm2kaP8BiHl6MssefQEDLcf8j3J4/2n7398cGH/fDj0TYfDw7bU1N+2+rHe8TQk4dmX3Dn",
-	"uewws4u7L8BBV9p/f5jPZ2+bKTSturHCsPPf7f8Pb388iO6tGM93PJdcJcJnPd0mVQnmsKACcWQ7v7St",
-	"sUmpCGzQKNPBzp4cM4jvY/FcX4kcMtCZ/vUeYB+GP/9lxq/711D6YibV3p+SA9In8SM2Y2Y8y2q2e8Id",
-	"jFTNDndiu7BpU00as35rqYS9sHv2O5ZAalYyfjekkWHXlPsHHR90Qbbrea8LhRz2sOm2Q/1dRREaUcoY",
-	"CGSzHasFq6pAY3IAR5psGMxKTEetxDc3rjpvR05qR/eaXrSfnuH7NHYfFL0tv9uGze1gv79liFIXblul",
-	"XmqBOk4mIhcqEeN5297/9gl63oY//6U/QZMHSKDWsbZ31/6xIwvCBjfl4kRTIpSv75p7s6IROw5r+/j2",
-	"DQzUn8w/wPNrXTqoL7XvBLDYn3775Ccy4FVWP1yHO8bZ+MIyGB1OJ1zEVYXrXNohN54d1vLGQDxVHNyS",
-	"tOiy5cPS3THOs8kSPRPGYuw62aADCcJSy82+GXeIG4u1dK/CnfWL7i9mEK63NR4kPF+fLhzGmjh9BodW",
-	"hXEGzMI+6YBKDUTTucDgfOCmBJdrSR8T6MuXDTLf9eItbXitoeXpbDBHLN3pZZYplSwkYJ76zx9/R2jG",
-	"RKtCqlKqi5j1H8O3KEBYOheOKOSUtiE6hfb97izTN/ncN1M7MEGTjXntUHdkl4MUTru7haa+txs0g3oX",
-	"W2ztjo6ltYUsnVUnLGW5VaHXdRjsbyzgpZHSlrITsmHkzfMe3FcquWvpioMVWYOGa2TUnRnlJ3XOdyH7",
-	"lkOs8EtSYYnHXKUydalntjhB6aU0YgX2GIcvHJYnmWptVoWbk11ubTMun6NLir/cCBRRCWtpj1cU3HzT",
-	"peQna5YaL1UqbML0xK1WKOjZIAfQIyolYhf7qy5Ee9oxXnWMXZl3cj4nbYbYNGYdO2ECi4Shq/BKmvYc",
-	"rqacjfm5GbcXJP3pt6dPf3KrAhLtfsKzpMRs6p4wmCUxt210O67CLmVVGnejaqI23ZXnxJ/CyB9ruxur",
-	"740dYH39Xghuin2ywRp7nMwArAbXfxoO7sfsr//5/4BPCywyjz9TOmTnmDpfQOpBNBaQuNGENqMF0VoX",
-	"+o+ymZApZ6JgPBtE7D8ORurxNNczXuiLfMC+Zl99dcT6h8Ph4R47PLi/N6gq3NPYoMODu2AU+PlfCWcI",
-	"mQ+X7BqB0eIaDBV0zBlPcm0M3RVwrbNMX/Tx00idPdnzIUHwdW0ae5HNogPz9bVvwVF79uTEpv3jI1Ud",
-	"Kz1xxMSVn1I2N5O3jdgby02tEv9IxUsVdwZNvKAvqtugWASgDA43pcUOLDOmnMHY+LnRWYlJ5DLKc0f5",
-	"sO1FGqmVN4nxmUaHJBgkpbKgdaVrBGimcwHoSQ54x2zSWqeYPcXlIIWTgmwQRlHdTYNpWu1yjKuvIe4F",
-	"YKfNgpATeY2ZIkyFDq0jJZVGM6Q93PSX/XyI/y789wv7mb43+C8sdUch0V+5b6hL//m5ujx7nxf/2Phu",
-	"6fNhy0v/qfHd0uell2pfII7zbUgPXlUFnbaKpXNntVpnZk9qZA+5L0cls6wtjo70Nl8rtmt11qhXvwlt",
-	"/r+me6z+QlTrei21rJWvurklAogNpZDPxKRA/EvB38FhL7yafasL1kA3CkRbe4R3K5FSQqQEO3LkuNBg",
-	"glxB8vpcOdwR3Un3Fkgc9CYEdlxASZGRwodpFHX8M4uDWR8zapvWCpk9PAw1/J6MFBokmCtvd++YcaDM",
-	"Foh+pasmgdyCuJSKi1zAmOFdIVI9Y33YgIf32W9tSRQz58rAFAiEg1QTduuroQ15qwntgax+2Jq7tHHQ",
-	"0DOclLksFmcoNeLenAuei/xRWUxbtF/4Wufyz8iRjtnX+CzpIQmCh2zC9AFDqI85ZnGF9QL/RBjTgMVl",
-	"auA5eAIxV/EJM0LYsgeYjUBqBZUDrvfdzdonyI9FopPYCxIuDqkS4qZFMe99+IDOwIlenlKQWp9Cbk0t",
-	"J2upkCFVFRtrur1nSRGwd8jDXPt5KX9IRIZ1BP05Rh9yXlaVzASJBkoVY4AlMwJ9E1aqj0jIwaYiNs80",
-	"VYmHeNEwjtPg2bJJfU3E/vjI5biDJrmqoblGaqS++IIYIm2SC6/kBUkXgy++YFWhThA3qmLT1VzQ0YLZ",
-	"vcFfC9ueS+4Cy0B7sPTFsDTnV4rux7w8z6SZipRdlDLliDvFtmqVMnmSwNwKq/1SxNwFSAcWjAjfWEYM",
-	"VTXhno7UPBeJwJpUJ95mBcTErQWKUxCxQSHZtv6mzVptjVoD9pQn05GiDYWuqlWuZMtczAV3oEmpWOwM",
-	"EjGu7m9+wx5rdSkUfjdS+1TKgAgxRZbC+hjF34lxgr2+ke5bqFdy7969h6wfk35wzLxBIQYSxqDHb988",
-	"Bi+6Lot5WQxYpUDjIaaIchgextHkgoG9m5EQYQYwIqreQz9OpJKFYM+fPn26/9X9I0bqiBnQsC0mmOoq",
-	"fcO/wRhGhe8sTmA4FvxFAM+grIA0Bbi9ycOEP9ZcSlURfQ6t1IRALEHtsWW51sUe5rMD/Sh24jFnBmat",
-	"RIYzsrYeRkTPYUldqmtafQPlulpY6zHVssTE+4w5u4JvChYpyTSokhy4bJZFzFDQT0GCLqxfwotkCruo",
-	"FtQbtFUg4jqH8RqhUkMLgQcn1QnRHr9mRLDOxQlLMomwXDPVJTVEeGF5oXQu3GSKqVi4utQwy4hhYk4G",
-	"YnTObFS5YTxN7Ru09XgC9SQgfyZyhMtE9mKZyKkuSJYotg1WAk9gdd6O2QGw2S+P2KOzx8+fs0wUhchN",
-	"xFJ5IQt6Ox4AvR/Df47hP/txRFPiVP4FVQduX4Xzhe+yPkkZLK6Od7w3YN8qiXGu0LINi4DWgsgInvvQ",
-	"cnchgZ9BIzZlPc4J2cpIESmM714exCzXoKiQCLIFD3xkccRwSaRArj9SLtCK+jmGgfxEH9hPKLH8xC5y",
-	"Drv800j9tL+/7/8PD4bslP0U7hX7KYBnw0Rou+0WRbZkA/wIdyqih2sJ+ysFC2zbd9GSbTsNuTb7ib14",
-	"/vIMkSoXrqLbT9Q+cXPPkwJeFDVKs0XOo4cyuhA2tq5RVJa6r8sI7CfgZKbgk0lrt8TdKtZmTnxKTI8l",
-	"OmE2UjC0z+Qi0XlaWxNjR0BCCfupHjgA00ZhFUkqdF86BkSjwO3HNkbqaU2WYZk0NqKEDoIttpvOJLFb",
-	"UiuxCgtc15FqEX2Ol8ITvvgCyIxW4osvrMY7Q7tAOiMjm5sJFtWDIYjUxz64EtVAlGRhs1EYT9Lgacf0",
-	"M1EAdwIO/Wou1KPXz5mTJF0qUiRhGLVIV6iaOVDsSsg8Zj+8hfQPrp17g6Erh02XghYKTRhwO17BS4e4",
-	"uvDK8yfAVJVICmv5NECsHzl4WMRmPAOGSdUriObjKbjU70QQYnA0PDghliXTIFJBlwUIdXalaED49L0B",
-	"i+9OBc+K6Z+Bdt3FmiL050wUuUyMjZK/q+dC8bkcLPgsi0cKZQ+lXYhB7BYOF2LPEaanaAtxVIjq2sFG",
-	"KrZUuawf41bRgb1rv/0dZICMXemEkYptDSeglC31xWLswcRWDmkrN3YMTMKWX4JqS/QtiE8woi8fDg/W",
-	"lmYCuBLQ4/iuv3F3D+/WEw2wfjzqjXoxzBTevJrqjN7fO6HeH599xxKRZdBt52JPUKkytkleAQqWsvl0",
-	"YWTCMwqQ66OoydhU8FTgMuPXB3sOZGU7+uquE/ViO5wKggrj2VRFyjX3vhT54hgVSxjbnBfTY5kS84tp",
-	"EMfPUzGb60KoZLH/B7HA4F6ypVs5aSYNyLfKKrnh0mNDJHBL4+zbOfFVm6M9vmuP2kt3PZhZqIJfR7aa",
-	"HWhPlscTtw2Af8BHj4bDEzo8LoJnpEAC2retnZeu6BcW4c+81wCkHgnlwrlywkVoQHNCz0jBnYsoJoeu",
-	"LT0RQXsCw4FktUbsnVigLHh0eAh89/5wSOoL0I2RGhH+F1xoeNBHPSLPUwG8zZWti0+sYR4ExAsYSKH9",
-	"mEUOJtnBSH2jkdpDZ1agJvyUL5BXBSzhCnuVioRHJwvUa+CBRBwun1YCxViPBUHBD6n2O8SGotKbyUTY",
-	"DDAUHQSV2ua5FAXPF0Ehu1DJJZyksVnPAOJmMwMCjeod9+4NhoN7hHicoj3AUTn4+0K0QROxZpVhhxDN",
-	"4OsXzXOdCGOQaGUSgq2+QfHJUb6BTykKTuy0d9z7B1H83nbV8PYdDoe21G/hKn0EFO+fbJYaOqibTFPU",
-	"BVkEGvPAYcJq3B8OVzXjx0VJexTPkFLXjCm94x/eohMF6u6Ah0NeCiwbFPUKTL/0QzVzQxWlHM9Yuciv",
-	"cw3nX5SG4oDF9dzVYiB9sLm+J/QIVohC5gniLXCfAqru4ha5dJCGFXlpCjpTS3vy0o5s457AuO7OMy4b",
-	"u9FE6CwtvO3hNpY+WLaZn8fKTQg59cqdAH+oE1a8rhZQCfDmnZcSpFq0CHY49ra57Y69G+QWCx0OHeQs",
-	"N/yI/adHL1/cxvq/CTXadUtP4lNHGmN9Lr6uHre/OhuQZVnAL8s8xwneH94bqcrJ29wVFs90KlDw2FjD",
-	"DwTCqogfc/iwY1vdiuf2KKTOE+EihWmQOJJ+vbAfK1UhswpIAi0bIKEzjaYQYuYB+xwppQuZCHRGygKC",
-	"frGsGh4PEwfaRa1SX8TkBAwREUoBmFxE5lCBa8XdP6VduUVyHNTxWz6v2D0wYVzPnc8nvHVv81tntLTf",
-	"Kn7JJfnb1x3tauRrjrXPnLfyZH/xBVrKj7/4omkcX9J7de7UNxQsKFUPU+S3mMgc5CUsmUAY0jgIl4jR",
-	"iGTFeSv6KHa+GKlYpuGPA/ZMZmgtSfTsXCrrwH30zZMTFgNBwzsilUUVkYpT6Nim3oHvIgqS16o+ggH7",
-	"g1gYgRVhpLLGE0BiWHGBSvaMFBSMAUt/UP0lxuoy7u/Ko4y5Fmm4J40X4Joi3kKrquQdNA3SIT0EE9Fz",
-	"/h6CdEDeqhsqU0FhFjpHLzLBVWY8tQtCoeW284h0wmHbLQK43WOXtdvrCwYDuKXqHfdQG3AZEo7r8Zjd",
-	"7lCIk/oQtTdbRXbeXJs+RdrNNeljebo1WQvMWtVmkPS7U6NBLvHmZX3K80zCbaud7Ki6DxgB1TIGuDm1",
-	"AXSBBS73D4nJlnsX1xt6L/QN9P0aMscY+eeVvaBCW+vIx3LeHwauysOap7K1ymKbzFW/33pSIxt0tVcM",
-	"zJeQ6nyoDIo1b2+R7+HJBdrQxvcg7TlMqMoSgrzvqAvv+5qnDt6KrxxsfuVbxa1JW6T0Ugdu+Uzn5zJN",
-	"BWIJjw4fbn7jjdYvuVrY0ZlfiJt7/v2YwkwkKPGLgIdbfv0WQDUNg2sPa352ScpXZ/6YNvcWJAAqWIg2",
-	"iIkEfx9xKe+W1SoRUcUvbXZduBUp4Zrom7E1CFAyXww5RyNwLlxLK8RDXMJltta2MdUjdPRtYuXbvV+r",
-	"dCDK/vIrv1LDo81vfKOLZxim8jd6Bx+5vOdwREFzQ3CDxUigD8ulmbjt23kXHUad7uj6O+nMfeBKEimV",
-	"wbSonaCst1VU81JFLh0ICvDWqRJ4r9CANp8LRTrpupv4CKfwq7yOOLQXeqVVApfJfL6Sv4IrGRw9dN8l",
-	"lsi7G2gv06obuMWV84WN8bjNtfmoi0cxcoZx0Ihp1BHLhYVdeybYiKb0aGOdywuMsXEAk2LqWGWVDDWT",
-	"iryGTKJpPnbNjPUEfELwjm/I81EXIYfelAK8ElI5wQOypFHrjWH4TLbwhv8E2ium43GAIYuO7AtLdrCt",
-	"kUIcPEanaSW8YaiA9PzWB9ZesnvPEiC/PNZpFM/JPGAzy8Un1rRlffouhr8EjJ5VNUcKq75z5+N3GDFZ",
-	"RN754mZ7x9inyHzmavszbkbKlHORG4GTf+VSKFm7niWndE6nXCqWcEV5CjEkgfWPhg+jkUIHVGzjQM3Y",
-	"vm1dYKeY3qJ/dHgYkePznJLaOTmpco56NgXtnXgk20hRxQbIefzyYAjBA4eHe5G1OwQANgCl2ehVIPZ7",
-	"6FKN0bs1tlsXH9MYaFsRLUWcEL/1+4i2CyVcvIMvkoAN2sNixgaN37BtSlwBWqBgmeCGonXsOxaVZQ8b",
-	"z+DrBbUDkR/ul/Ek5wjkoGZm2hTsEICqelKZLXleXRbwQfpm4ahlcErrk3BDSHSpCiwhrFXV1J4dhVQU",
-	"f2LG4PoKp1GDTgYPxrR8OIa+3SVm5HXktmiPUpz5jMrUE5itxgi8HQuVmrESIrXp3eNjOxkYbu2uwQLA",
-	"i8w6kW3qaHfCp/JiCp9pPxXPc0A2wC/YEcwF34YOT9AEBY1YpBGNxY4gQmQbMO7CBtk6iMXVdEG5ny+E",
-	"EjlH2FNs36oMWrjIe23yA1HOp44af6QEgWzsa50ubkx48CPzLL+OsPdV2GvCy8Gn0SXCsHzy3WP/L3Sy",
-	"IpbzNS+mYSloqjUdN5gjpnCpTzFa5+r5dyY4DTsITo+1mmQ2hdHRQYcxveaLTPP0jdYvIJ6R3rvfZQFM",
-	"OacKPC9FKvmbBSWxPDo87PKy9YSDrPVUFeBJ+BsVDZ82IXM2AywqbdxJXkE1UScyvk9uQlycZ7oYzNVF",
-	"JyVtB0MKnwkEEKKzATszlxexndnrb/6ByRkYGdcoYK8zXbz+5h9uUwXDMdy1q9Bi0j2XipM5q4szGGf5",
-	"Wen6xW8WHJxA24oYnaJbN3q4U34LV+qsAhN7MdCHQM14/g4ir1xAi8/tF7nw3YnEkA2IAlUpKQy8qowx",
-	"50pk7Fxk+goVFrqaHlvFCSOD6KeRUnyGQia17yNxgigfaN16iTZd77PvPsH1NpcXv7veCd3x+UL/Si/0",
-	"2Xef5kJXgPtuNpXapW7e4edLIWUwp3LOCg2pw4ZV/EcQy2YnjKoeoUx4pR0SkJluc3XLmau6xXjB4ur7",
-	"uNLeULtyut7egC2hMAfsdTV3Cs1pRqdxtXAhXOjRnyJnn1DdM15Y4Ds0CA5lWAxLFE5q2cdGCh4QBhU3",
-	"Ik222CVATh0alIKfsCyQLgsjU1st0oYHinSkSAPUOREyxsnaPWChVZxCnSYQ9lLF/Nl+EPE6UkfDh6u1",
-	"umBRfnV6XTW2rRS74a0MgLpY5Y21Nqy5D6iJCPplY8vyVOSD3mcd7LMOdute6zBgAsP1XHxvwF5CLtCR",
-	"x6zhKZbv3ICJ/qXG7M2WvGHkb9OwzArNYhuuZRmSy/4cU6lZcq2RDS0VibWf2NKZpJBCS6K1ZgV7hE2j",
-	"jbwquoyJjYnUIwKU0qKSEY5XprR+WNFFK7E3YI9qDIWStWdaXYh8eWaIEXt4jHIsfANfTDDL5kidYkUm",
-	"E7oIMUhc6StinqaNxFOZvpvwwt88caex/UKEfaXFjkYF6UA+E+vPxPrWfanNsNNbdacuZVy8YY2ekA1h",
-	"LxXMoUUBQARyEa/CxH7XSN74KwQtLGXNXKF01xb+s/b9y9+779qj2lvhDGts0x3V8KiLml1LgrP6nrHn",
-	"QUA/NDtSK0L0bc62c14kUwpWhEIyYUd7Jz5OfqSgehvdVvSxugylcEunIDT1G4OyrnGMaKn5dyF5QFVd",
-	"F19i/ZngaBqI/SZBOg49Uq4K955NyzCb85xq3lEYaj3+99gH04wUpibHHMwuGTk28dsnm5OWAw4SUzwa",
-	"VMZHCrNr//W//m8Nh3GVbGcQLvK40JnIuc3wHEckII6UM0X8/C+HQ/ZbV2yGfXvGnr5+xM6+339w9CV7",
-	"ia2zB8Ph8EmYC6i+jyfL2AAaFuakzGWKaxQ5nNhI1VLf4NcOS+BwY4+qEFNcWpc7neIfnJgKkq3BrX3k",
-	"svvXzhe8Svnzwgzk9cwNzKHPR4oXcHgJ/QDE3sYxcVx+rM4SNq5z6yLCdk8wa6N9jgAJmGvH2MR+rhfb",
-	"vMuYRPbesN1opDCjCIr5uabsRs5Hj01aBA5ahaCnIufKEJzBHnOqL4gLdzR8yKzJ2FWqIRuPi9MmCT6s",
-	"SAPxXPjHWOli7H6L9yKv61QgFrhxXDGPffL+sqqREKFSNdGwBtlnp9yMJxKgLBD6fIypKMM1t3mMwt0M",
-	"QD/QZ+3o41qPg3OLCQ04QWVWmJi+q6fc/nWpIW1pnz8xfKAtkXsHScJdfqbLAi76Z5Xls8py+6LTKckI",
-	"vD0zUJUYqKME5aWRzW6MIJXR3R+rDx+cjmNJ4i15/wMrDt50QnkWtXK4Nm0e5azgBXE856EYKaWv9o59",
-	"blrhi5V5PlaQrR8JMr5L3eUezjhSfaWLLsyC5Cl42HEb8qVSMKiNWCTkOFrSIiriwwuX+zpwJuCsrrj0",
-	"1Yldhm4zUmF9YW/QoomNpRpjkiZMdKXQ4mbKZNrkeGakiBnrLBU500oM2PeNtLnUPuANiavxCzGe6jK3",
-	"OXQCAUYa2w5m9qUFpJ2IqKIapd7DgQ2wFLDNYoi40VxgCg14EA34VzpPzTqX73P1TFP9ju3YWiXG9zZH",
-	"ZK6GeW0TTrnMTWaagvtd7sATNCeSfwpLlq8KmOPF9vGCtx7M47ZiXUxPtfWftfBfnJUs7wpcVW6P5Y2q",
-	"4JtYyM26xR8ZFr9+dfaGrfG+xxGpK6FNrFqHCUWVLzGX2BKFeIm9wNXFnLgjFf/DU+q6I8eM92wON1x9",
-	"SN3nk5ChWyR554aXmlbH+je6OX50ZRyNlI+qIBfJah2hoocf45AOqeot6QttA/3snf6sPXzWHrqQ/D+W",
-	"HGSSxRrad6Nuaptrs5NO0BD4M0qlEMaBkZjq0sydLzACaJX/4qXt+hYJAHWxzvNg5/85O8DNu+6yLMh4",
-	"XD8rIdTCPrPy/G7jJAhFDLSTwvljiY1r9Cf1YMBea1NQJh8KEYO/8WFKmQw4t6pOIVnrZWGWzrxrmjTH",
-	"6+CX/uHwAOKvBCY8yaupYzhiFJhYXfGUCpThG6EaTyMVhGBWQxfXPClsNF9jXHcMs/eH6MhIuYEqK5xw",
-	"hHkQZAKMoYfDIUYu5sKQ9drXtYAM+IGhn4o3BNkQqrqSJkyz5W3pZqqvcApQRISB+fmRNQBUGdtLJd+X",
-	"tPZSgYBLSi3ARdaYTV+67Dm3IcZQ47+Q4GJn1kKzSGdNeOaMK42dP/E7jHksyFiK1O0mDbKrx0fXzu6f",
-	"zj8uuMsxkjjgVHd/hGPz7y2667Mo9isECuLl8dQoqrxvochDpaG2ZWZ16cue6RsQwiJXalz7NDVhkH28",
-	"OkMpUdK29GrgtassW/jP7VjcHjEzFwnYzANyFtC4Dna3IHSuGlGVN+vg6KujB/e+PPpqQ/qst78Iba/k",
-	"0c/Gt1/++r9Sbjd2v99W99re49KOHEN2bulOlRWiEiTJR+8zGgTVpCNMBEE5YphU5MPHQn5o28Ak+u/B",
-	"zFVPpfNaZ5lP/DFStVxxrRkmsUwK5OLGW3pcwVwwCwbIw/V3MLf1FfgXjChYH322Nt869GGLMlod2Oic",
-	"QbOu3lgMrvuZzkXsXBQCc0rCVzYfDrsSuXA5GViiZ7aKw0g9Q/AJCEr1ERkhXP00bMKL2Vol4tg1i+Va",
-	"qHooJWdAmpuTW0XIPARIGNsv2hA5zQu2IifwhsCaBNSXczr5gSLpywe++gU9Jg1mxC2Ecl0H3VEjmIId",
-	"nFTHCIJCkR+yeCCGxAUdIdhpQEIiOPns9wOeAkYjph8sCoMsxh5iMXAop2i1p9M+Gf4a72E60FaPnH/B",
-	"/xQOArP0F2FmlSrlCQwdTrkrUu4fDh2BWlFli1ZbxCk29BQ3d5kN7pJK8cRyqmoocAPcoxMh0lU8DO/Q",
-	"9rkWbzTd5MFwuLo03qfmmLQ5z0Q76iNM9fi3kQTrb1EWJtYCxxbWuQ5nq2Gx6ZvdjJF52dm7FNRwWgqb",
-	"1rm1yAC56wcVBqs0VJbSEQhgghghJapqg0ChyEbRyHp1xydED0Rux08rGnzMODscHoD3nysTVDiqEXeE",
-	"HJbKhs+ooHAcVZaBCiAWOUkjq2qXWIOQzgmPyPq+eniEeYL81jIBhfkiVmgN9TlHCh8ye+Sdgspn5KOK",
-	"XK0wi2kMA3vqIZPHLOdXI5XyglcJuopprq8UgCAWgMANKuOw/tH19R714s1PQdaoc7HQNtMP3Xey+hwH",
-	"i85mpXF17yiloSloTat9qvJnnTgzEiyJj1V3ab4yfi4yTAfIc4M8faT6S/mUDLvQVH4nwOPSYSmubD1V",
-	"4wrEUUl3PlI1KO6JuyQyrdm4glqWtlLRb1hQqmakzgSINkvVawrNZmB4y0WBEfqGTwQlBMfW8Yo5xM1I",
-	"UWkklAQMCRZihsOHBFBU8MalgDo8YggUIVioNaXdQYuduhD5PJckcXB29vtH+4f3vzwOC+ZQ/kW/+IwD",
-	"98sN5WobKaES7aMbWB/rPcsCy7ImBAqdCTj2VnayKzrjRSHyvRPqaKSgZlHYEfKxqnSQ8bmicn5FlZXO",
-	"F4WgonxnfCagtk3kkp37SUUk5bop+7JcKZ29L75wudVGivkL9cUXVJ2mKHNVzetweNBIqo6jQCHVmbps",
-	"jUl8rLa9p2Ke8QV2m5ciBgseMyKBWwErWrmR69Nx5ukinNMxlu8JHwwqMNSn6wkA+JUyqG9M87ZdI5wJ",
-	"Bgx7YNHmVth0LRRyJhBP67Lh5zgTAl7rnGH2uqPhQ0wiRvOu12yQoKlU+bUmUkkzhfFAyziLR1VncJYt",
-	"cQKSAh3cB8riXwe7NWo+78TCXy04Ov0YC6sk5jLeg3pNalGr+gdVXvICnhyw73GUj0lq2QfL1zHzL1cZ",
-	"+kbKVrqy9SIJRu50naXjGRMdAxG76hhr99YKDPQdwyRKE7vqMjHrU9lpnu2d2IwAcVOcii3oO+gWyea5",
-	"cIJo/2g43POGIzyg0rBv3zzbfwDFkzIifXh19uk6QpIReIaKY6Z7BIQ6OngwHKm+nTqERZzDnLVPEhmP",
-	"evEJe/EMtujx6YtnVAxMqBTSDryQCqMKtLEHcqR8gUnoK/5N7HIP0PbAUsAX5p2cz0V6YutLZ9hO8MOA",
-	"5kWHnIoLYL9Wf6QNG7DHWNfMeO8kZXFUC6JAtpgkFT/D2oi0I+ynSq8BgPxPXgTSV0tVJn2lyXdSYbHH",
-	"hYA6h7FrIcYP+H7sqiM61Ip72H4RFARd8SW+jgypehk/1l8lnZqebpSMc2+5IJHazxH763/939mw0YKv",
-	"4uZfRuBgUPXZHqbVP4yUXwQoHIb9V71UzLMxUxcOs/SC+8FW+o6onKhgQ9anR0gUO9ijWpL77FWQwXEu",
-	"cthJSCXqiqzbWqdz1D4Z5hysUXhMEei3De+r3YVQ4iR/GF5ERyEFL+qN1Ldjz1lw4fdmD8F69elvE5Sq",
-	"w24aPQQrtjdgp/rKclpbBg34tZd+oCX8FUkvgs/oHoT9SlNdCjLIqgXeAhQR6MFaIeTSCKhTCz2lIpEz",
-	"nlH+VaxM5+gaEmGFVCo+GNwX+/fiPYp/YkDXSsNValzyRo3FSr7h3wBBfa4mHuLKMvlOhEVqKfUYldb1",
-	"K4JJQzD8SyoUYiynwaqI9RImQGQXlKzWwCTvGAZ32lNWPFn0ugqLY6alXdLULSGRGu6qalZrSL/bWs2w",
-	"jlYOr9g7KQYg+/jqxFwFNM06JoDYUfpMDJ7Hh46GD78kWSioqWcTtc5tlcnORSDpeLQ/H+/5M4NrTFnH",
-	"YY1RSqR17EMAGWa98WI21Yy3hJXIFtiHmEdhwStQihB/MxHzTTgNzmW2AkaPPI3c1zbDKjQF1TLgDdRY",
-	"8CJTMlUSk2xtRlBYrP1KWO3Rt4jF3yg7n1b7RE3Is3jic5byBUpC55oQ1qgykfMlqDl1x2CjVBgnDzAA",
-	"0ITNmYvWW1uH0Z0Ft+SDwSB2+0Y2wWtcheORiuN4pH5jZRnqOKC686kuNEoF+wesb1nrMgvdGyk43pHT",
-	"mkihrPMDR/ojTxMiR2FGym1lpCQ8L6IXB9FwcD8aDoYHw8MoWvvE8OGD9icOo4PBEJ44HN5vf+JedEhP",
-	"HB0c4BN0etzvEb58fxh9vz8cHh2ueODg3j164F50aBd0BfDgtNw+TCuQ+P8gFr1lcx2cDDxpXgxElkH5",
-	"pJ0mjHiqFea8jywmtM1ogqNVcehV47qBekxdx+ajItCswqvQkQrCv2qUgSR+A6V+qiF6yR1Gp4H5NGJi",
-	"Vg3ISf+dF+2Ve+HDrWUkKQMkb9RzilG9geWFQM5PBfhTIpEw55lUL4S6KKahQTnMzffp4gtPy01hhXlZ",
-	"RRO6qKTcl47pg7xpaXVutfmRWrLhROSNsi9Z1uDT1dsNsy6KACvTZitYXugYjQeutKM0Tu+xvbm1Q9eh",
-	"YhUqDTttGC9Age4CrznXOhNc4WHohuhB9ETpsjXnpfp3mav5M5rnV5hPUpuCcX+RJ7IILnPowSjXYanD",
-	"aMwW58UWZapWOzAcvXGOZ+4MgMc4Yif02/IRjaoBZHb1/hn6ruafzkUiJAY01gnaqgKmO8g6p6W67cwy",
-	"MKzVtPozfubXUJnK+gPo8N7oFbtpYA09Ui/C4uwr9dtjcRdgKfLVVkbKJ0q19eKcGOqsWMZ72ZbDOoJi",
-	"cjZ5hS2jL3PvEwyr4AB+ug094crwUKsXEmQU1CjtIBx0sVZKpl5CwUcKgyXdhgIHlWQCNIW3r5+GKKOR",
-	"eiJyoC3N9DaO0vzxcRR6IsqsFjBuRgosRECyItYIjMMqMhbS5CuKjNTBIOjlqjbElZHfxyx2k4KKQ4dh",
-	"E4kus5TVnKyNx+81e/SJTKSyIJnGG0fhG9aDAYsxA8pd6HzhHKwc3S7e8oRh54227g9CQGQ77sZnJqqF",
-	"y1tDhT0NlLwn8D3QuMLeomYqGny91mXfZy9ezjSTC3LKiIwyHqFdE41cQQKbkfoyXJxaDP0xi2EJcMt4",
-	"BpP/Knw2CM1nfS97w7mIyK/ko/NpalAqiDF3hoBe1ZB1HjqHB5nJAJQFWZlcwKilJfFqZnnqMRG/Rp7p",
-	"RreKddLPn9nnL88+z+oZowjxWaobxdoQL7WX+OOBN9ROQH+QGITmGGgf7itvZF1zZMNUxj3wFSLkURr2",
-	"noIipaVpKhFNPlorZWazWTlnWWUR6lfcHQz1E+unDgK7PLeoYIbWwmz16KqAWYW+LfzNudOE3Y7USnAQ",
-	"W48NghWtk2hplgSLK14ttwMcEoct5Ew4uKT39zvRH/O7IasVxvqOVuXIsw6QkQp67RshApLYFMrA0eTO",
-	"gt3wCkIM2yALI7IJsgiIJUMh0XOQiu+XaiNMyCbJt8nGqPypyFKLHoK+MEO9z91mXWv2aJx4hxWTaQ0T",
-	"FKJ00FsAbUUg5wFPtNlpHPOThQcYT7kJG7Ws3E2NOPFIVbNbbV+2C/hRbOTmDYB2VL9QGrDN/MvLI3RU",
-	"ZF4rimhhNJ/j+D+bm25f+01TfxoLHRie3rsA/2IqZttw8zV6se3o7o/eJ/fhhjXjSQVKIHIZMZ7k2mAB",
-	"ZrpvLozZhjlHqNIuKc4nbAPz8F1ZRmprhaDWK9MqMyeNi9KoOAZACSYrsMIKKZ2o2EpBfZmsQMaX2tSX",
-	"GJv91fty6jFzfkQ3Ezh3mzpCfW0+qwm/+oqCzVvKG6f1xhQGhBR31BLCCkjGlAKLGHOV6hnDZljfw48P",
-	"Dh+wc1mYveouge1KEaLZ2GrKRiS5KGxqOnRvVQ4tlS1OPMpC5A5qDt+jSGhhyyM15WaKpIrMaZm+MEwW",
-	"q8WwNzDUW0ovgG3/QnIU9r3B4YnbFFXqjt0ASOagUET+tV/+z0LO7RMfvNuM02EJCI0lFR2DZOlp7zpL",
-	"RSYK0Zm+nIpL/c4itrClE4ufqtBuw4O9yiBts7TYxF6YjWSkAuieU+VybDelNq2c0UYqnuBwHanYHD//",
-	"EULAt98+f9LK/o+WV4uW5XMg+a8iITBsxcdfk1yo1Nxm8l5j81msSNhbDw4PPDRYqG+kwE7uz3+QdzE2",
-	"mZ4DQhShY+fciBCXj4UPoBcrsZw9wZYqL1Hs3ogrg381XHjuSqpUX1UdHg4h0BxYZa4zB0U1EvPc/vwv",
-	"h+zsCetf8VxJdUGRFj//yz38kuxzexHV0Qe70dlUXE15XoCDIC9Y//nZK/bVg6+G+4d2Ot8LU1yg/x3N",
-	"VAf7h6ZqPGIH+/cAoX24f2gidrp/ZCJ2tH9ACtPB8Jr1yXu0h/YJAQvJyY1YLaype/YMecwQSRRmLz5p",
-	"ZNQnk0cmvZoyUrHv4JhNeGYo7/Cl1BmZ/SgfEyyWT9kfZKgCU+alztB8iGEyE3HlcMYQFNfcHEwWbAt6",
-	"uS0EoCrtB5ozVZllNg0zdSlNtQgD9ogwvOwA4bvVrMCmydMTBpAnlVB0uEsAoMITgc4nzAbQVzxHkHrh",
-	"1gIYAp5JvFbMMvQokA8RyZWIaLnShL5SI/XHxwwZeVrmwhA0o1ZjImK5uCgzeKet3ES7aoqjWcFH1sEq",
-	"byYdy6dIstzWh59tZ6wjrtNr/1oLAvMpItyAfoRG9IhJhRb+y5UwWjgYN4AAfcGLlt7F9YbeC30Dff9e",
-	"X7EZxGU07mTUyMdRJ6ARBZgWAZFeNUr3e3vygMMwd8BhLXXA4SdOHUD3aZW1WOQSFgWurptR5EMXVFqR",
-	"xs8pBW5eLHqSy0nhJA4bee8uNBbxQR+WFTMazBw2p855b6s0NEldt1nmHbVt6KUGNKB+4wYwt2ILEUtz",
-	"fkWus0rWQSnlOJQdbDAtGWGJlWEwh2B02uELkolGKhCFaJ09Isi1hqIH3QqBNu1M2Er0hDvE6PoMePdp",
-	"izCidEGjXsf8VpaI/8wDP/PA/4Z5oJzxC3HXXF787nqW1RlgS+zEMrND0vCZjd1GOemK9BJMB2l3xIiK",
-	"3TBXgr5FUuZgNQSqeC54LvJHZTHtHf/w9sNb32HzPjwPYrBLqnsdFCkLIB/9Shk3e4PqvMNbLWFrzygT",
-	"TdiWu2jkgQ/AjcBFTdAkPdjS6HN1KXIjWJXfPKjTXQ9QD9urHm9r9I+PXHUeGEtY07qeP1Jctb1cQZDq",
-	"yY8iDzQIcD+ebyZV3qRaL9a9ttRNe93NqMIlVblOmuVafOvvk5aGKecyJg62OQy9aCFzVqV3ZnOdyUSK",
-	"cFntC22tvn5OVq3wcfqi5ekX4NcRxidiwj9noshl4qYlDUt14uPiaqFwtK1vP/z/AwA=",
+	"7P1dbxtJmi+If5X4q0/DVFWKomS5XJbQwLj80uVpu+yW7Ko5/2Y1M5QZFGOcjKAzIiWxq7w4iwEWc27n",
+	"ZoFztcDZl+seYNFY7F3t/cxn2P4ki+d5IiIjk0mKlCVX9cANdFkkM+M9nvfn9/ywlenpTCuhrNk6/GFr",
+	"InguSvzzWNhy/nBsRQmfcmGyUs6s1GrrcOtEZFrlhlnNLri07FSMdSlYCa9IddbfSrZK8a6Spci3Dm1Z",
+	"iWTLZBMx5dDUVCo5raZbh4Nky85nYutwSyorzkS59f79+2Rrxks+FdYN41FVnotnjxfH8HoiWAY/3jFM",
+	"5tClhK9n3E62ki3Fp9hwvnIo/6kU463DrV/t1quwS7+a3Tdvnj3egvE8y8V0pq1Q2fx3Yr44kIcsK6RQ",
+	"diebaCMUeyvmrMcZvM+kYZydaZ2zbKJlJraZnXDLpvytgF9gwaTIhwqGKIxlho/FETNCMDsRTM9EyaGX",
+	"O4ZFffaHys+W9quebzTWHRhsY9355XOhzuxk63Bv/8sE9iF8hlW3VpTQ5h//8HDn/893/jTYedAfHe58",
+	"/8Nesrf/5fv/tBW2y9hSqjNaHGVsWU2Fst07JMPvTOZCWTmWokwYN2ymjRU5u5B2wqQ1rKyUWbaLdSfX",
+	"3c1noXMc9nGllp2pslK3e6Lew/tmppUReMK/4vkxbT98yrSybjX5bFbIDA/A7qzUp4WYfv6PBgb6w5o9",
+	"vqK3qNPmVF/wYqzLqciZmSvLLxN2UWp1xmCLmS4ZZ+e8qATTlTUyp/NIzR6yqX93qP7+5OU3CeOMjgS7",
+	"mIhSMM5UNT0VJTsVhVZnJmFcsUq9VfpCsbEURQ6vuBPHdDlUJVdngp1LXXAr8Nd3lSjnLNACuje5FoYp",
+	"bRkszRzuwftk65FW40JmH3X18KAIo6syA/pjLLeCjXV5KoEq4o90oXuciBQrxbkUFyJnvCgFz+cJ40NF",
+	"P8EV0JVlnI2lTRgPL8MPtPB8Kpis7zbSGGNlUTCphjD9s4ndduvxFIeRC/WxF8Tqt0KxgmdvDRPnsH0m",
+	"0zPBCok3XSqWXu74q7ODv5m0v4VUBE4CL56UpS4/5rB9x0xAz30G0zjV+ZwZPjdMq2LOhluy8dBwi3GV",
+	"NzYZiMX7ZOsbbZ/qSuUfe92BMuXhONaXRFxKY3Fkr/i80Dx/rfVzXp6Jjz1AXFFxmQnhbocR5bko7xiW",
+	"aTWWZ1UpclbIqaTRnojyXGbijeLnXBb8tPjoA8655afcCJZxBSt5CnvNs4nImdIXSZiDzASweDOprAXy",
+	"l+sLlSBB642Rhl6U0iLTlwZZIVeZm72BFnN3xk5FxisjkA+GvqUZKiCsXOWnc+L5bfFsJ8hnXZN1T+9G",
+	"khzO97XWL7iaO6ZjfhYycceE21MC7ZSG6XNR4gq4k3BT032jeGUnupR/Eh/1ar6Qxkh1ltTsMglMUJfA",
+	"EPRbkbNTwUtR0qq0Jv3dd9/tPKzsRCgLoxSLAkv6Fb6dEqvgiqVIo1LGrS3laWUF6x0/fcS+uH9vsL1a",
+	"LG/LdrR0s1Jnwhi4hE+UlXb+MVfwO1EUO05KkWpWWZICTkvB36L4XBWC6XF8HY/cCpgUyaJhcG2HSo/H",
+	"QuVwRVH8qCl4VQjHNt8oU81murQifyFyyV/jenxskQKvxB3DHlGvOzAKuBxAhbRqqQWMZ5mYWdNHmdb1",
+	"AUN4iN8DsXkGy4Zjz3MJ7/DiVQkNWCnM1uGYF0a0R1K/zeykFGaii9wc4UriGAoxtiAXMotqDAxJqDOp",
+	"BKopY14VlvXMhIS9oiDWrxU+OBV2onM8irNoHD9snfLs7SjjRTYq9MXI6kKUMILRjAQ7cZkVlZHn4oXX",
+	"Hun8wungdutwK9cVMIoE1Bx6YG8wSLqUTZJNYcvrPqdSjWbcmNG45Bktww8r21675Y8zk4meapOJnBsr",
+	"M2nnI17MJleexof40PuEJBzY9A3fA1lvpMejsdz0zSlXObe67NCnH00ESJAXoE2zMZdFVdK/dNTORZnL",
+	"zB7hB20nojSMg9KRn0ujyznqbVZMzVVjwX6+4VNB47l8Ri/t1evLy5LPt5KtSsl3lXC/w265CYhi41lf",
+	"jkpzu0cBjnIhzkVhnNJPj96L39tftLzQi+XIvKt4SYzyA86/rmwhRTnKtH5rRvmtTdb3Y2yFCv6fxO31",
+	"VVbKbLjf56KUY8cxFilB89j/+OvHP4LWHb1Cwh8vc9Z79ujb3UePvt1mUz5nQFsZP+NSgfJhzVApPZWg",
+	"oaDO3mePHRXeHySMgyTE3pywJ68espPvdr48+IK9QCrMvhwMBo+HKuOFPHUcJe6erljBT3WJV/WOceSb",
+	"GWENdMz0hbNG3cKKvw/f6NN/FJmFBa1Z0ytdyGy+IWd7glppYGrAl8a6zETi+ZapOdbGLGpxqh/OcDZh",
+	"LGu8vZxNrPFyB5NY461OFrHGew0GsTk9b1DwDnK91ggaxHqdNxqk91oUdh1KusFbLbq4xptNKrfGC5vQ",
+	"OJBxic4VhQZjGGjJnRTPsF4eEbHl5AtFySuH+T7WfP4Qb1TraHQd2KX3Zvl1TFYSi9WEoH1Omidx8R42",
+	"9qx76xePUXzBVu7h911U2B+PtiPEyDOFDYHugAvc31rJAwb9ezEP6A8Gg72OM/ZQ8WJuxZXUvkmvyWK/",
+	"vl8ABT17pRUfnmkfKOzKvd+5YlUu7ZNzr0euP4eaObRUY1CEL7hhuVYiYaJ/1mdpWal+VgpuRZ4mLEXr",
+	"cn8sbeMzn81KfR5/UwoYpsjT/qKLJ4ER6A4XIBBar3uT4Rd1cw4NdbfToqLcih0rp6Lr2VxYLotu+jHj",
+	"pZVZVfDSJEyqrKhQr+fewl6iaYkbrfqdHqt427jd8hNMtsL1c70v3cfn+mzDXRTn3sG6FieLTssCK2vN",
+	"wLXcNdZHvILhmSWHhwzYBigseClV7swMh86qgHfYC5mRndaR5aHKSmlFKTkbl3rKZtVpIQ1YSM8qmcPL",
+	"HeIjz7JS5NIioUnA7XlWFfAj9u+Ey5OXr9CywGalyEQusCnaXHY6R9cQL+DK5mwmSqPVUAX/cyG4Ec4/",
+	"6ld64XRNpfK63qKggFLEhtsLW1hZkS+u9FN4HLxiZP3IoHGW6arImbMr+3dxtRRLgReIPIXNwL5wZVI6",
+	"kim5JS4m8+hon2pdCK6a12ZhzmhT7b5QkTiMRwFGBIwHbYpHTFVF0Z7BhMNRUegovMC/bZhIN8WHVsiS",
+	"T3rBanmvfVwFqPmR/cg50NGsTiPKRea9lMFAgMaBC2mEm1hsIVhcvHW4RUPEpJ2KVjtqjFwxnVMpRbA8",
+	"0q2ztdUs01OB16mTghq4NyCBLNlHDCDwz8DWTAU3eGdRLYy38oM3rJv/1SP0Jy4sU1Lfkqbs4ZZqJdmt",
+	"170r+gJ+9Kwool0z1BAPWVpLe8DzSNxLk6FKI1EPfmlLefBdENSATkmt4LsgmmEjpYBfzsXIi64jMsEn",
+	"LA2SGr4ljMwrXoxAWoMvnEhmsJWpVtpqJTP4JS/l2KZ9Fn3LemHNgAi6A7PN3Cagacz7k60GwgLnJrPF",
+	"nIVGyMMCq3Shy7fANNHt3vcdosfJ7xLjlkl1Jow9xFeUuAjhNqbQs5o30LXkCk/zyeNgkEefdR3+Ab9y",
+	"kuPuGLY/YFNtLAMSr+xQeamE+jBJ7fv+Thh7BjYQElPw4hjWM0IMVfrbJ6/Z7vneri2Fyk263WfPGled",
+	"VaoQxsSko5AGjReMm6EKi5q4uwgvB/s2XpUxyBQg3Ci2N2CtcQ4VOlkT3w81UG9VD4k6fVsK8i6wFsEE",
+	"v30a9J6RVCOQjVJPipubUVPislLOxYEWIN8Am3LkyoU5imZ9x7BUXM7guoZzalJHRqUdquaQ6/Oly7CW",
+	"CY4aaS6sobP7qGq6RKNq6lIdWlSsB7nrtZVsxYrPkrsVK0H4VHSzal0HR+LP/layhYeciFRzqSOS44ht",
+	"snW5AzPbOeclrjFMEYnQCwiactOkL/xc8dNznr19OX4qrf/i68U54/df8ezto8a88evjkzB3+uwW4MSN",
+	"+YmbPv74LFoD9zQtxDGtA373sl4MGm+0IvjFY7cs+MH3Y56px7gyFF8Dd5QMhF0E2Bsfs/hBkM2JIoc7",
+	"Xylpu5lNbBOs/3eFPRbifiSKhx388ELvGJnDPQ1PkUIK5AkPzzkvTMIG/XtALwf9Bw8eXKmrPnjwoKGt",
+	"3uselS118Ry4n9nQPHkyERcTXqK4DY2QJ9yw3rOTl+z+l/cHO/vbnouHmCGIFSikEv0Opt2lS44m8myy",
+	"pm3HvVHoizVfwP0Xaz58wUsl1dkmA/KvrDuilpjihtdspzWQxqyTxqJ1iia0VcdV0Smc1NwL5L1e+Cgs",
+	"40U/YY8Kqfrs0URM+2z/PuvtPfhyb5sdPLi7fcjSvZ19kw5R0KZgvFMx1ypnP/15Hxhtz417+wgevWtS",
+	"9M6GZ+6yk8dHLN2HRpi90MDblRFZBQTFPxY4NbaI5+2Ipcc7B/QOi15JoPmh4qf6XLDP8XnvRkdJG6P9",
+	"Lthf//lf9qnng509k7Kxrkq22PNQha734q73Bpcps0I1XnHOY3waoxH1OIgdTT4ES7aVbMFybCVb+/QJ",
+	"prOVbMF44LfB5ZoUHzZ1j1qAv+76v/bDd8cH/q+DvfActA8noypNl+Xk5Yy/qwSE8BlhQY4wumQ9uMZf",
+	"HFRlfbVnQDnUGRo4o9jde3v7a8Xujna+//w/dakRGFG9aUgAIzMSiT199l2QQgSHQZqmUuseBntQUYB4",
+	"m2kxHstMCmVR9m3yc5OSlpvpc15KEN5TdOmK6czOExJt6UYbsjIpAa1DN/gckL2EpU7xQ8kpBYdxmrh2",
+	"0aOM2vNQgfaMR6ZNHIlMjLjtVNtqoQsUXv90k2WsMmnx2oS58FsWWWpWqp/+OXgH57SZc6TLMRLvzOLE",
+	"nyk21bkodsS7igz0usxFeciA4/CS/eF0kLDTve8T98VIl/JMKvYH/O5dxfOSgzLqnkvY6f73DQf9en4Y",
+	"Z6652zX85ULAow7WD5t4SqpIDp+95h1EgrXcCclWfVS7+vW/gTBeykvfcbzWCTM//WvvH/7f//O/fPcP",
+	"23/9H//vn/6vhJX6woDYFD1H691Yshtbu9ULS3bk1dfBxS9zE268ypmxeqObkY8Xe/CSLMvFWSmEgRUc",
+	"l0LkepowBTyGzSIbSeRjo0ik0bkoTae4imkjkcObnieyEtQtmBvGYpNdHZ/f3esP+oNuG7nzfmt11TV8",
+	"Eh58n2yNC35mumyGmTWMn2KEFQ2EhudsXEp7E9faoS5PpX1a8LOu+z8R/FwKY0l7u6oh1H1OJrxEC5jM",
+	"10t5SOIMjk7rZHCaNpfisTRWqszS/TVepRiTHrEqkcjZn65cGSenw21ARblzePTTCGzQyw8VPcT8Q933",
+	"A3h7Y+h7XUNHknvVyF/gQ++TLdV1fRxXrheM9fCQgkqklfAWiEqhAeLKxZxp2ckfKKAi2B6cNJD46eqS",
+	"+V4TdlbqagYBr3NHjqUiPmpkzVnWj96CpX0Fw+o61Q0vezuoFJIlRN6kssAJrChBkcXB9CrSZZ2PusHd",
+	"tq9p4kZr21XzOsaH3kdWDZOvoI9h6XNxLmnopjffvdxOvND8b//9gv2GKXaB82Ym44W47gTQCXPlDOgp",
+	"9zzchZFGEs+L4uV46/AP65CM79sS6KtSGNwpxbhigeCG+5ZEF06Sa7QU7hiSRZ2CG0brE62WkNqRBukX",
+	"nx5YwubRUbpwtj+UeRvLbbXeLTmhRyP/dnMabx69ecEyXatVtcmmYdIJBpwFAunlndFalOtb93SgYI6d",
+	"XfmeewzsAHiYRxlXuQThYilpCk+A2TrTpXCW5ZRXVpPagZ9BmbgEAo0No0O5kG8F66EOAqeODL6wRJE4",
+	"sOTl7bXJGFGjR36UXbTMz1Ur8PV28p+v9YXrnGJh8ZLnTnxRcNIKaUCu0cxUU/hH+ZzdNKIz3cJNmNX6",
+	"d/i78MriRX7tEwkFq2BMaG/WSjCXPosGbrc9dIsxJh7ZVDyaEdqlRX7jo3J9ZxOtjTBI/u1EmFrXTRgv",
+	"jK4t8Y7z0xngCo0hR4yfIr1y7rb6IDpN+VTQecxbswrTvfF5RUPl5i0xNuz8T6LUowlXeeE2efFwwSNN",
+	"YmAoh8XlsbILUYJJY2ZdNECp8yqDayTVWCpphT+fR6TV+3VRgvFSG3F1rAYl3hIBD9LaomyWNLOFvdrt",
+	"aJ+XreJT3b36XTTGi+xdd7K9jC3NepGbNHTIJrtHnajpCYEOgn8lUnqDaBYsAkHy9QJHTV8D10ga5o6G",
+	"shdZIxaUqU77J+bnq6e6zK42KrVMLksCEqaaHIZ4SFEPWl+ZPOVGdka8zF20AAkIJgr9lQr8obnpJH7X",
+	"Ms14A9vVnLmaTnk5JxVyJkthluvbErQgfk4UKRMgRjf8e85PwfiZaPkItBJLF3CJzBepZtzYURwfuD5d",
+	"+jZ+q5s0FRyjFuL2wWqoy8CeuE2bgQtdno4FOz/ugD8NCcV5RSvcNa1or5ee8+fSbBrAd+0DtIFtr3WU",
+	"2gKEEpd2lC2xRpOV2kt+8Cib1UfI6RCwWvh1/+oj07UVsAfxKNZZa9LtNjNTv1RiQRmtESZyyc+UNlZm",
+	"5ojx6CNGvoUjJm0rhZr1lCZzkC6BlZdaWxQLwHu9E3mv3QPkDR3gI96DTSrCqrw3aKNLX224X3FS2C/x",
+	"2aDzXFOjy9q+3bVMnxhCLCmbufulKzv2ZoHu8CnS267ZdDBkdZqZSn523TGHaATcy+4I973B4Ke/9Fqb",
+	"ivbKxlJv7zY+XlsfJ5nh2vMh6W3NfY8Cykdxz92ICsWc+RcMoRPgC9ecKclby4w5bVMHqj9HbED32R+1",
+	"m4hzo7PVvjfRUoahhkMcbdOSNYwO5sLtShYIROc5jC7UUoJ6EiwGbVsShtYihkmfPawjvdCPNqO86RHZ",
+	"ftKjEGgNv46B0vUj92vz6a1ky8dL4bApzHzdcJt6zK+o1WPfaPTTw7r96Nvj0FWYvGOPm0bfN5yCN+Dp",
+	"a3hV1msPPJkiH9UOv8VA/Nr0hA85d4EkfywEYMbhg1FIV9NOsdBzW5C4MXv/Zrb2mzSWX5F+dTXN3NSC",
+	"eH0j3aKV7ZpmMqfVr2lC+Hhqd6zfdqiozXO/QmXtoniPZVF128r8L2yMiR8IJSVB0cQ8Wamcsst6IV7z",
+	"N44cUgzO//M/s9w1sX3E9ojHkLGnf+1E2DXC3Z7EPsYNZOKrDOf9jlAIl/HzQTk8q11GXjinGBIaiefU",
+	"pkGVNiDXyyW/UhByh+hKzFzC4+t3ug7YgscJbC0jSjyCTq5UrOtHO35q+E3WQimMZxC/HxmIXI+tsUYJ",
+	"UN1XKRy89TSyJVuyfhJeY68W9Tt/chzHww4StrcDAVR5p0/xyKGRdb3Zvr6NS7naT9t5bFYuYATzt8ES",
+	"1hdpLWtAa7safqR7bk7L05/ax3g9S89rcWk7LDxkdROUZuCQC0qp3oKJ51TbCRMKgGX8KtYWdUgONpQy",
+	"AIGX8LeLAOClcK8Gqb5xl25mvN59Dr1FHbV2vH2xuvbeR150hIYC/3FhHrwd5GHiKA+W5mhTUC5IY0RM",
+	"ND2k0FD8jiFID5tqTC/iik14Ma7zMy0vvAPYZU404z5SiCEdi4tRuHxmNNblyOynEIe6a/64T94YdNmQ",
+	"02uoqGccNmSEUaZEWDwcRjMFARObQw9pM3Szc5JbyVbnsNZUItzyP3ZNY/jKd75h9+NTcXEcmn+qy5N9",
+	"VBu+Frywkw3vai3w+Vnpt3RA8vmaQ6Z+X/5uyw/hmF5unz7XVdehi+hpx7lTLnOXqyg9J/FO38RtV+Jj",
+	"5krwYM8K0QpD/eJgrSjU79tgsoPki7vvO+NSayjZV6WAg39tihlpYOuznSu8EQRH5PRi5ztgki7EEaAC",
+	"tjnJelJSM35xpZZQPwmaBe7J+lyhXtITfLONeXQFY2jnTQfx3o+j8xi6mMoNBdZ6oiEqs46siI1mFIWc",
+	"nupK5XHKbMLSQl+4mGLgH2mIEu6wv9Lb3XbI5ZkJ61sh18FI0RfX6qUtgWDCgkti8FKsn1/XBj3nVtBx",
+	"WA8m7joR03RAkHf4dFRKTIMbgel/8lzk17s817rneaQZrnoraJBrGT7aImyE77w6Vso/2Kl31/esbrFz",
+	"I+uwzM3u2utJLD94hazgJeYaGmixS4hYvEbXcSQYP+DmmMCKG4vohOdAMgVmsLoHeFH4OEP/+3WwYNqm",
+	"XBpV5ypfJ6frsbAiI7+myiEiXtngc3T5XQnFfLcjrQxC5s4sS7NSWpnxYoQWiBRApf152F6V1d3aIt9K",
+	"tjqhD5LN9va+PLi7s8/8Ox4M3HsJbTvZ73KUXdcF1ZjcdYbj1yJh82uPYhniCAS/2ImYU4CLX1x09F1M",
+	"5rDi/SUAJsJlkXUDL8Szckomo5dgmDQ/WNXrwikUusOV+OzR1+z3+ywMjs5fwu727/70l3//p92Ta3f2",
+	"bmlnXSc+YXuDD+rQyLMp7xbXwsn493/Ce+UPB12pZlhWiu2MMEoAxIc1cz+it9ZXOU/gpa/wne5QiH//",
+	"JxcPp8Ba4aLQtttxZDbKCVf58rjE3sVEZhNq0d0RChg+AcSsRckh36JtXLiPyTK6sXjIV0I4vAgm/41E",
+	"DI/mcCVkThsYEMQDABkbGVGMR3XkcrdxFNYSztpCUB+2YRg0skONUMAiZDXuiLkwlNgpYQPG293IIo6L",
+	"b4D/Qy90p2vF+sI63vqr83gQm8CZYEFOc69soMS4Pk7na+NEuVeavS8hpVFzC8bkViwhDP9Mngu1JE2n",
+	"hYCw9EBghZLUu8nShGDa24djGvCPQ4sOjSSGmvGWAP/doh3AgQ3iTR7xMzGa6Kor3vybwOndpc+1i1KB",
+	"eV0XeGezZBMHwrIwAe/5pZEBtMLYhwQu3oj1vXvX8WBFb430bK3oq/D2S/f8EoCbyN8Vb81VYaV+FK3Q",
+	"zUAYkpjSLV/L7mPSDt+sL+NyOnyNQDY68+sTMeroSgAz3+zysV7TBnQN1kFa8HqcIwalmpVSZXLGnS3U",
+	"VTbirKwoJGzKc+HiJpDIns5rP1yCdnEfUmF9hGpAv8TJHbIOnlOKcWWEYabKJnVUBtpmD/b3t/vsRFgm",
+	"bSBdpVgEZAOsNcfigHwSnhqzGigLmNlvnqE1jE5XOCOazG49OSs2k32/qIzRog76D+71O5jL1T6DtZiI",
+	"Pxu+9g/ZDstKkTzGFdOV3dHjHcwHWEDuGSpCO++lIWgjpfSmGJYHt5V81Ig71KvZ1XYLmydC2/pwJgQa",
+	"EVR1cg7z2Nvm52sswNR5KylYR0nuvwFf+Zf3vzy4EgH9WhxtfevOCla37BxADA5YV2h9CCkTKucZf22B",
+	"CJyKOIfN25iblGCJiPkzsUlHMLt5ZRdLDJSjk9z7fWvVOKHky5TN2W/Y6YB9zk73fvrL5RFLG1mZ7nf3",
+	"U4AeSIeq+R78u//TXy5/+lfC1fny4IsvdvZbV4Za3krcH66LrWQrtLumNwfn9Ny3Fn166VvE735fN/s+",
+	"2XqJBT66orW/m2hWOrda7bw5Ql9OOKO+xuCc8pQQ2jH9u7TlwFm3BmDTg/N36MLZ27/f7cP5UM/N36Y7",
+	"ZJUTJF6ROtz2es6sm8lOWQWbRT6WJmoG8Kx1UTGQeawfH0fPXytKjl7dPCSOIG+vc1KO8c0upXxJxF5X",
+	"JsSoZdfHV1sL0Z5cS2vwM7giiWJh4BvfxFVG4mZWAokCKKE0o+sW4GORtxF8bJ1H4YwA3ooL31xoj13Q",
+	"wKoEKWd6Ks8qXZkRvJ9eNxk/dgOtcbKXYHWkiHk1wrEBrhGCY9UfxaUt+YyKWsJnerrQhBzqP72Dn5Q4",
+	"w6Bu/Fvj3ECyqFtuTnuoeg6eK07J7FwysIc07OSHaCsZqgiTcjthaaWcr3Dk3a4QoHGCaC7ejefOXs1c",
+	"Ml6Wcxwxbi06XYcqVdqOvOUXtiHFsBOWErWlA+nF1E3jjxcek5GfeaUU55+L3hnVocidhv/aBQ2mJX1q",
+	"uVQhszodS1EUouzOm54KrkYb5lh4R1aX7QeeAUtaiIWJ0m855Q/kV2OLtJA0F+NDZrNSX8ppQzPBZzud",
+	"8L6+jL9OUeohXHFhLDZ1E7kXMu9IvOgGBj3HrAqfrBsWtb0nERVYPBGraaoTGzajqX9LrufVDudXpZhx",
+	"2oQTK2aboskpxgv5rtLWn6kZL4WyZCipZmCA4JRcws51UU1FQtXn6AOQuenzOq8vFKxgP/0ZwrYzyxXg",
+	"ynel27l+R9NiwzpRqxRO36jVhWt4wwZwqjc7JmrymiNqh/vUi7Yw2WjwrU67zw3VP1xMQnr6iD04uHef",
+	"ubqKjFxJZnEHl3lqqSIGusqwkLUDkJYBQSJBWWMmtAtmW3QPLIF5eaoxL4AX0pWhdKexq6ikw+ZfU7TE",
+	"qT6FlzvZnapTLJfWimQzbied03EPOHF8VbHJ9B92nLq28wzkFKsZbLHzhpGMQDU27g0GS6HpK9Pdz9ev",
+	"X79i9ACizDTCrO81IHUPBp3oU1baLnTVk4kuLTOU2RUoiTs/0ErnUOmLxbDIN8fPvA4994EwcWOe51el",
+	"OkRZ560QM1EeumcO3QlJ+1tttXq1WoC/+jlG6S8rfKmNg3P4w5oX5LWvOiB9CdX+0rwNUXa/3zryh4wz",
+	"qADPXtFLTCqrCWNRQ4nzdLeQSpjdYTUY3M0U/iPcpwxoufsqHSq4m49OvkXpP6UnpPv10L3Op8I9zqi6",
+	"cqgOT4Lk6nX281q5ssceomsDbvZdLG0ndV62C2J3C+Lj2MkvgYWk1Q7CqtRF/jg7Lbh6G6O2RZnoViBC",
+	"/XZLpypdfVjCRWgehQ+JX7zxmMTO9UbRTJhNM33AttihjYGkt4M1t1M6SPgFWMpTdjGRBelBUYVtFgps",
+	"YyH9UmQaU0V62IhhXBmIab83uOtgo6I61G0ze925kzmx4w3shLAY37n3/eeX2ESdFWOW0XKee8XAsN5E",
+	"Wz8vs80KfrbjZCTrqo6D/nammdU+9gyr+/Br4PC50Pl6IxuWtC8Owuw7kMvilVt3oUJHq8Piyfy85Mxh",
+	"lSAwJXWdIcgnRjcdL+JDQ5aLhtH+CM4XtEUarsaIZUt1232ZCJAJKJWjjoGixEaPcFIHyR6xFA7ZRBR5",
+	"OlT+fte52D6BOnEtJKxSY2kpYkyXzFQzURqRu/g0PlRrddv30/B5P6HMkMwmzSMerQ3lobvJg5XfjXzt",
+	"bcQeXzUadF8ex+26774LzeMOts7cZsRDqlFlVrhr6Irg9YD9VPqi2+lS8LOREZlW+RI32ZiXdCDYqZhI",
+	"h5U+KyXIKxhhosc1vAoGjjTDvVy1+CV1CVbWqg0JUYsZTtKyM2HJAocz7VWqBIEWVjwBalEXikGLEBX+",
+	"CJQyIUAxvr1E6sS96Yis0c5LKBXb2fE0eAcJZVUWjnHuNaRDl2Sybgqe7zvxW9x9/WuLzGJ2YVSwxqcL",
+	"9pxvzlvonMWDWHWmy5KC4LY3KW3RTC7cWfxtYUePY72+DeBQG4Q8Qt0HYauGJdrMK4KDrIrr1Tlc4eXY",
+	"JOs4451XOyqNiPDz5LDp87xRBhERLsLnmHimKE3Q9yF0o9vst0Yk/NUx0Rv6Ud5KlccMlWaaO3VCjLIJ",
+	"yKbr0+awi49CQ9GXyDkf+SZBZYClA9O08Tx1vViNBidegl0Ivzme5QTfMW6FK3PZgQV2RWo1cbow0vXH",
+	"5z0vbl/CtkplvzjoxCLfECwCD+VoiZHbiHeraSpqDAKya6SC1UFURpBZKfkZC0U2SNTyca/nz4IROWg1",
+	"PH/+8rUXeeF8xJnoYUXj+UeAEyudZo2btoTWV4V9KkT+EVDbNizyGdPKLlx2bkZTXS4JoFwJ6faKG4Px",
+	"q0ZiKQ2HYNoAd8MYc58Rt3qf3byanUYDvMIPeRwC6DbMS3KRMbnIHMDzLCBZZKItGcOjXUkva1SvjerG",
+	"YoDyDVSvzeQ6xQBoZR77p1eIbd808A+bUc6bwfGFsUWX8Ar8h9YwIzbjtJyA7bQ2f4EGH4aX6fOxa+J9",
+	"/cV1IkhuYvE/FEQggjQATwZNtBUN6Jz7da2a/vK96tyVqhDfSl3UmJwbUDdHVJcYE1xwuVTnujgHZVIq",
+	"ytbcTIr0fK1N2dxZWVIr1xMrKOTEXIGrhHIz/E9xIchuzax01biuCCAKhbsaFVtXXyBsOkwivJdEi9q9",
+	"XWrjkktlpYCM1/VUbgCc7FoRQ+uUgvGVkTat/nKN3BEXX70Ei35D8NTjSlFBrI6T6mewJEzKAjOCdxoL",
+	"4Een4tyPfyRKm5nztUuPAaTylFswr28l9edHJ98ijbwuFtv6nuQ6MmLTdzZAb9NLQx0/gOdtHg94XEWB",
+	"gB0GS4oxCKVVu4/EYgnWRqHWvJ3LRxb79cNfGhHna03LF6i4MgtjM3C3BhBb2MFwX5YnpMRzqDcpqUGC",
+	"V0uSlfL66MfEYF40EuFvbCZKD5qyvmVlBbVZ90Z3bd36C7hW8b8bgFO5ZZDETQM/V6MrLKAPLlm966Yi",
+	"XYNRf0yqHRPhVW+FuPQPobAhyaptWbwO2X2k8xr8dDn9vWPCj65UxZTnYqjQ5IyRiVBE3D+yE97f7rMn",
+	"EOlBFx4wJ0Lbd8DLQweIzOkBfpV1FPM+dFYY/zaFSba+c2WLZhhb5coWoQlHKkZwEDNZzhm3Q5VGZ8pV",
+	"uQyvOQcPvOHCqlzKUp+99mPE4M8aEnaxSrqvDF5nsjZjNTc4kBH6XGuT0ZLzrhLud2e9W5FYBcRXKFvO",
+	"Y+KLs8dQ9bXJsOeLHWfx3mah/4FnruCQ9YSWkpUQk37LXG3T6Pc4XrdTl9vAwrmgSDkT35rx7LWIdnOe",
+	"hXwpSuzeMtFzjSDeJRbcRmTmJnXArpbcunCCotmtXM5rQT99Al6iVWzcj031exdT7+PkRc74GQc6EpmK",
+	"qB7FxU2bAVYmFV1R778z3rsZrHDGz6lOKYKxUOg/RmNfO13jOsDpTdNCt6HAUa8PKk0YbGaL4fEsAxNG",
+	"qD+4nN68Xsyd+SBk6jVJ1ZK0ltcYp+Bj3Rk+BeJP+urlyWuUlbBfs/uDzN/v1k+aNAkJID4hpFcfi44a",
+	"4ZjKvJguAuktE+GL81Kme97AZj1iaStiP4StzK+ZWNLlgoCLfccwmWO8Bsl4mFUDrjZU640zRK3hV7uh",
+	"RJUbzzRZbaJpBgfdilf1JvjiDbtbF9JkrgNTFTvfrzCf0qI4f7cuGYWZwYr78CBsZX3D6g3U+kwoBoyl",
+	"jZ8W6/c7qM2QNoZwm1KtWdNvY79vU7qOJZ71Mn02ySFqX784q6jp5G5dk47d3wyoJRYt/hZVg1X3qzN/",
+	"eiNtgHo31zPIbGq7aOOk3lqy+EmmZ6IRGVspc1jHFOPSHMIpDza/w7rUTj6Vak33AnZ0XCnj443pC+rg",
+	"mNrHr9DsZkLlHfzuIXUE461B7Tr557//kyczhAbYO97fdqCX7PnLx+w3NfQgkpDnL3/PflODA0KOLETZ",
+	"QWlagsA5eVx77T1Guw0l1zCcvod5qRacrEMVap6HqPwxRtCnFJzvoMaxebP713/+bwQs6huHtu1EDBU9",
+	"vRiyn/hBwT916WA5BcHNuOj8nnhXAaiL1W0kPh/lSW+KfPuoWY73sP1CMlT1KvC4oAGQRjeCI1/BthdD",
+	"xhyyei2j4OKyUpiO3YZmR9giXQoX5lgHFooC1nVh/ZpxwtD/VrLlO0RswcbzrYKnax7acNoeUvv1F19B",
+	"Tyd547vn2CVB4zZ/8dXTTyh8LXhJbhCY4RpwuKuql9yG5aDmq1dVNVtCrBpGtI9gQFhY1Cvc+9HD8fJ+",
+	"VGvCTS3yC2ckvtEzmi/7gbLJR+MQPbUx0OSNaOjicsYRkKBSmSgtl8rO1xxNs5zueqPxUbTrWI79fvwO",
+	"3ll5eQvdXc1rVqdQbwJG0ki77hC7vBtgo5mHl4BNLtPwqOZgayuaPL/qoSViexf/qZkuvEKx1GStt2Rf",
+	"8HNZF3e3QoNId2mqkAS+5gFZXmXNw1BvDiSeizoWdkFroXaXrCQdk2iKrXLF8WHZUI3oOrCN3KuxKIXK",
+	"RHCzwTCszt6OjK5VJoAWpv5H7UJHK9PaXJvHvpetJHx3Ap1En59Tux1jvg5aZewz3Mgn5Du9GrkydLHO",
+	"un9wJZP1TJQxA1swVB670Xt/n7/2UNTT/127I61zAXo34h3Tj9nGJnx7gZ/cEMjBMgbRYZ+tKdAdw/x7",
+	"LHqPvUkoXr413GtkX/1szOcGzgguVn3bma/xhP5i76g2rLdAERCQcrsfsbwIbG5/MOiY8w2xwFoX3x/c",
+	"FkNc/7THXOrKFWhwratObQPnhCeYqyZ4DurfG2Srb69xVj0fXNMDAk/fEmFZUv+htQ7k6zhihRhbpivr",
+	"oQDavWyIL7o2FkqTy0c3vYsJYIj4YqBzKQSz4pLGToAkCJKaUUgy2HpLnllRhhIglp8mrJDK+R1gszNe",
+	"lpKfCVYKW5Wqhe64761SS+Ad/zgcXg4GO/DfL+E/X8F/HsF/nsCXe0+Hw8v7T7//vBPl8TXE4l4zFO8a",
+	"WsJ1Ql2XGKSiB6KoYmko0ZVZHWI08Vgp5kDR6syQ9Z1KS6HSDRjRNhBM4PGuDnBM3fM0IiuF7bOTib5Q",
+	"DM1QoHYeMWlZxpVzwSFqAPqc1zTVU4+JR3h1E7myGC+el2sKQIjEjXaiUhdLyANaPqWxGJxG7L2QGUx1",
+	"omUmMI/bmEow7jbcFzvCSpK1jZXuVWxWZT3vezzY30fxAEiOtNt99izgAFDxDZc0UcN/l4IZK4siuC9P",
+	"510w3ouxV0ZYwxYgyLszHTY88dLlOCEABAwUZ+8OO9ZRyiasV7/DTiXCvWz3WaDx+LBrBgWmaAExPl8S",
+	"YgnuCnCA6AYxacJyHAzuuo41pt3Xvd4xVKQQhnQwOFj+VFkpMFRSXi57LiDsQFfdl5f1cECJ27TEYxlu",
+	"9z80ru3u/ir7f3eQmycONyCxASYwliMC/Cs4b5URNXE7YgZpgPNeU2SBSxflVS4tsyWXRf9DCFO9FAeb",
+	"rkQ3dLQbSCctKYW6SUstgBAAY70S/h36/co/fM1MmivK4hehwNgaiUuuGhmcJW2FWQKIZjUDnCrY8alU",
+	"eVR3G0gBzAlghyJcD+YXJPEkzVM9TqLX9mZcMGA0rbXAr8LTjQriax1HasAXPV5glmWlMi+wtMhko/DP",
+	"hVS5vmATUeRROd29ZDAY+BWhyksFkXNd5MJY9wDGFsMad1Prc5+wt0ncdJznd2U0YHcR/noTonLg4eSH",
+	"g9cYYLxk/oxd4ZRt3pEPyEn8oPzCKSz29QI2VFd5+GTLdBwa8gfXMee5OJekMfcU++s//wvbWwbUFW7Y",
+	"dYufiYIQR5aD1voewhWGzjNwia4h6eH64aRhQeLExrjvpfv/Kr7wzvsInRXALJaHzoUjCrIF0qWxxsIk",
+	"cRqdbwT2pgTFqOVHTLbKkXlXgSK4RTXw1jNTNgd+4nppfvss6rP5S+ROXPjpJIym+cNzTb7HiGh9hKSS",
+	"TXFFBFD8bqIZ17/BTFw6ZOENpl1pMRcDOg7ZvR7GKqamU0n1MfBhs71M1h3F3HrxgetlEi03O4Qzecd4",
+	"s8NyOHMlgJM6kK2xtAlc9XBQrxv3ujnAfZPHdENAGp+EHp712d7Rnq0tF7cyqVcyqDiuqxHG5d0jAb+t",
+	"zsmqT2HzDDTm2kWP8BjHl6OqsOfYEDLYecB3xg93nn7/w5fvd+KPB5t83NvvLojxpjMK7yHDODwM2gCD",
+	"kscWnZ7tPofwusr9+4fZbPp9u3CHUzeWGHb+fzv/w/c/7CV3l4znW15KrjIRaq1sAnSJCIh7u+aP+64e",
+	"0blrjY0rRaHCrZKs7OTxIQNbGUtn+kKUgHtvepfbELk8+OkvU37Zu4Qyp1Optv+Y7ZE+iR+xGTPlRdGI",
+	"vKGo4aFqeNGPXBeuWIvJU9brLIu5HXfPPmcZFISh0JWWNDJY1+u9t+aD3r6/mvd6IJ3BFjbddai/rSlC",
+	"C+MKYSRcjSU1j9K7KC3NkSYHorA0IjvmtzNu4CqOm3CpqzipG90retF9eorv09gDpNam/G4TNneN6Jtb",
+	"TjBYh9vWwL0diUpj76adde39rx9j3Nzgp7/0xmjyAAnUhcVt77o/rsmCsMGrKoCgKfGUA4LhehU/ahpx",
+	"zWFtjo52BQMNJ3ONmA45lbZ7J4DF/vjrxz+SAa+2+uE63DHexheXPF3jdMJFFPmyYpoEWuvHc421vLEQ",
+	"/BpFZUFa9OUHYenuGB+XyDI9FcZlyKxlg44kCEctr46s8oe4tVgL9yre2bDo4WImNdjLxtHc8fn6eCAG",
+	"zsQZ8P86FcYpMAv3pE8zaOUjnAqEdgNuSskuHf6ySF8+b5H5dS/ewoY3GlqczhXmiIU7vcgypZJWQsZC",
+	"79mjbykXKdPKSlVJdZay3iP4NnaHxyOKOaVriE6he399lhmafBaaaRyYqMnWvK4RGnOdgxRPe30LTXNv",
+	"r9AMml1ssLXXdCytysYJVh1IvJwKbqrNMI1WZ1B+48LVW4V0CNueDZJgng+pOZWS1y2YubcEc3awQka9",
+	"NqP8qKG165B9H4zX7ZekcpaPuMpl7oFLNzhBgIwglmQO4vCFj8TPJlqbZWBlZJdb2YyvBuBL8S02AqVb",
+	"KbiekgBGZsLLJWaNgpdnoFThIzW+loUiV/gy1gLG1tBTCucvF65MW+ZXKxb0XIoy6BG1EnEd+6u2ohu0",
+	"mtcdY1fmrZzNSJshNo2Y1UdMYEF4dBVeSNNdAcRU0xE/NaOu9fm3//7jr4+f/OhXBSTanYwXWYU13GoU",
+	"kQUxt2t011yF6xRzbd2NuonGdJeek3AKk3Cs3W4svzdugM31ey64sTtkgzXuOJk+WA0u/zjo30vZX//L",
+	"/w6f5n/cT93PVEzHO6ZO5wBcj8YCEjfaiYloQXTWhd7DYipkzpmwjBf9hP19f6geTUo95VaflX32Fbt/",
+	"/4D19geD/W22v3dvu+8NGH5s0OHeLhgFfvpXClgG3PwFu0ZktLgEQwUdc8azUhtDdwVc66zQZz38NFQn",
+	"j7dDQj983ZjGduIwWGG+9P4dw8BRe/L4yIHG86Gqj5Uee2Li63krhykTbCPuxvI4mABgatKFOr/9draP",
+	"W33T9504ikXpT9HhpqJKkWXGVFMYGz/FaGHBfHgz1Yzz2DxDtfQmMT7V6JAEg6RULuVU6QYBmupSQO4T",
+	"h2ylYtxFtPrsCS4HKZy+MDYvivpuGizy4ZZjVH8NWeuQNBZus1PSxvIScQZNndvVzHNSGs2Q7nDTX+7z",
+	"Pv47D9/P3Wf63uC/sNRrConhyn1DXYbPz9T5ybvS/kPru4XP+x0v/efWdwufF15qfIFZWN/H9OBlXUZ6",
+	"IyQMf1brdWbupCbukIci2LIoulAwSG8zkOJ1ZdhCnbT4Ptlq3oQu/1/bPdZ8IWl0vZJaNopm39wSHWGt",
+	"PHBXh5jIOsLSrdutLlgrulFgrmTIz+wkUkqInMKOPDm2GkyQS0hejysfd0R30r8FEge9CWnZZ1DIFGC5",
+	"cjamUTSzF1kazfqQUdu0Vsjs4eE7hp08JmSwPnvsTt3dQ8aBMruMlgtdNwnkFsSlXJyVAsYM7wqRA7AY",
+	"bMCDe+zXrhCrmXFlYAoUhINUE3br/sABVjSE9khW3++sfNE6aOgZzqpS2vkJSo24N6eCl6J8WNlJh/YL",
+	"X+tS/gk50iH7Cp8lPSTD4CFXbqvPMNTHHLK0jvUC/0SckYwlbRvBc/AExlylR8wI4YrmIYac1IDJll7u",
+	"+Ju1QyE/Lo+UxF6QcHFItRA3sXa29f49OgPHenFKUWE2AswxjYoelUKGVPBTXTrTeKTbB5aUAHsHfLfG",
+	"zwuojwkZ1gkmzTH6mPO6Wl8gSIBEU8hsTlBtRqBvwkn1CQk52FTCZoW2JnFoLzEKi8Gz5UrCmIT9/qFH",
+	"SIcmuWpEcw3VUH32GTFE2iQPjsItSRf9zz5jD8P4QNyAm1/ZCIWIeL+rDQX+Wtj2UnIPCwHag6MvhuUl",
+	"v1B0P2bVaSHNROTsrJI5x7hTbKted1ocmJt12i/hXUDZTuuCEeEbx4hPXr7CezpUs1JkAithHwWbFRAT",
+	"vxYoTkG+NQEqzURptPKQeM6oRaB+Q0Ub6rDz3CrXsmUpZoL7oEmpWOoNEimu7q9+xR5pdS4UfjdUO1QI",
+	"jwgx4cLA+hjF34pRhr2+lv5bqHZ59+7dB6yXkn5wyIJBIQUSxqDHN68fgRddV3ZW2T6rFWg8xIYKM9sJ",
+	"ZcGXgoG9m5EQYfowIqoZTD+OpZJWsGdPnjzZuX/vgJE6Yvo0bBcTTNWcv+HfIAKJwnfmRzAcF/xFAZ5R",
+	"UTppLLi9ycOEPzZcSv5MJUDZWVOdgtWuY8tKre02oqGDfpR68ZgzA7NWosAZOVsPI6LnY0l9oSRafQNF",
+	"wjtY6yFD1opl2xjzdoXQFCxSVmhQJTlw2aJImKGUfUuCLqxfxm02gV1Uc+oN2rIYcV3CeI1QuaGFwIOT",
+	"64xoT1gzIlin4ohlhcSwXDPRFTVE8cLyTOlS+MnYiZizXOO7MMuEYVkHBmJ0yRwmlGE8z90btPV4AvU4",
+	"In8m8YTLJO5imcSrLkiWCJkCVgJPYH3eDtkesNkvDtjDk0fPnrFCWCtKk7BcnklLb6d9oPcj+M8h/Gcn",
+	"TWhKnIqHourA3atwvvBd1iMpg6X18U63++yNkohSAy27tAhoLcqM4GUAhvIXEvgZNOIKnuGckK0MFZHC",
+	"dPd8L2WlBkWFRJANeOBDF0cMl0QK5PpD5WESqJ9DGMiP9IH9iBLLj+ys5LDLPw7Vjzs7O+H/8GDMTtmP",
+	"8V6xH6PwbJgIbbfbosQV/IMf4U4l9HCj3FutYIFtexct2a7TmGuzH9nzZy9OMFLlzNeR/5HaJ24eeFLE",
+	"i5JWQfjEe/RQRhfCIWMQhZUKViITrvumjMB+BE5mLB+PO7sl7lazNnMUCiqEWKIj5nA+YvtMKTJd5o01",
+	"MW4EJJSwH5uJAzBtFFaRpEL3lWdANArcfmxjqJ40ZBlWSOMySuggEAWA5ondklqJNTzhug5Vh+hzuJCe",
+	"8NlnQGa0Ep995jTeKdoF8ikZ2fxMEM0VhiDykPtANoISiSjIJ5iUZgJJg6c90y+EFYgNO1QvZ0I9fPWM",
+	"eUnSF7JAEoaYI3SF6pkDxa6FzEP2h+8BvM23c7c/IEeocZeCFgpNGHA7XsJL+7i68Mqzx8BUlciss3wa",
+	"INYPfXhYwqa8AIZJtQ+J5uMpONdvRZRicDDYOyKWJfMoU0FXFoQ6t1I0IHz6bp+luxPBCzv5E9CuXaxI",
+	"SX9OhS1lZhzG1a6eCcVnsj/n0yIdKpQ9lPYpBqlfOFyIbU+YnqAtxFMhqqYPG6nYQt3rXopbRQd21337",
+	"OdQPSH3hvaFKXQVgoJQd1alT7MGkTg7pKlZ9CEzCFe+FWr30LYhPMKIvHgz2Vhb2hXAloMdpAE02u/u7",
+	"TZgw1kuHW8OtFGYKb15MdEHvbx9R749OvmWZKArodu1SwQlLVepKhEAoWM5mk7mRGS8oQa6HoiZjE8Fz",
+	"gcuMX+9t+yAr19H9XS/qpW44dQgqjOeqGsS+uXeVKOeHqFjC2GbcTg5lTswvpUEcPsvFdKatUNl853di",
+	"jtA8ZEt3ctJUGpBvlVNy46XHhkjglsbbt0viq67CV7rrjtoLfz2YmSvLLxNXCx20J8fjidtGgX/ARw8G",
+	"gyM6PD6DZ6hAAtpxrZ1WvmQ045S15CG3RXkuM4h8VAGOOTKgeaFnqODOJZSTQ9eWnkigPYHpQLJeI/ZW",
+	"zFEWPNjfB757bzAg9QXoxlANKf4XXGh40IdbAVQirYuep0fOMA8C4hkMxOowZlGCSbY/VN9opPbQmROo",
+	"KX4qlFevE5ZwhYNKRcKjlwWaFdRBIo6XTyuBYmyIBUHBD6n2W4wNRaW3kJlw+I2UHQR1vmelFJaX86gM",
+	"eqzkUpykcZjFEOLm8NyBRm0dbt3tD/p3KeJxgvYAT+Xg7zPRFZqIFY8N24dshlD9dlbqTBiDRKuQkGz1",
+	"DYpPnvL1QyEIcGLnW4dbvxX2a9dVy9u3P8DgOldABf6MKd4/OoxJOqhXmaaoC7IItOaBw4TVuDcYLGsm",
+	"jIsgNxUvkFI3jClbh3/4Hp0oULUVPBzyXCiB4W0WwVP/UM/cUD1izzOWLvKrUsP5F5WhPGBxOfOV/Egf",
+	"bK/vET0igJUj89QKNCol7IUu3+IWeRB/w2xZGUtnamFPXriRXbknMK7dWcFlazfaEToLC+96uI2lj5Zt",
+	"GuaxdBNiTr10J8Af6oWVoKtFVAK8eaeVBKkWLYJrHHvX3GbH3g9yg4WOhw5ylh9+wv7zwxfPb2P9X8ca",
+	"7aqlJ/FpTRrjfC6hKjt3v3obkGNZwC+rssQJ3hvcHaraydveFZZOdS5Q8LiyAjwIhHUJeObjww5dbWRe",
+	"uqOQe0+EzxSmQeJIes2y8KxSVhZ1IAm0bICETjWaQoiZR+xzqJS2MhPojJTWiGKMRbnxeJg00i4add4T",
+	"JsdgiCDcEoQGlCXUb15y949pV26RHEdV4BfPK3bPrKb1vPb5hLfuXv3WCS3tG8XPuSR/+6qjXY98xbEO",
+	"uNdLT/Znn6Gl/PCzz9rG8QW9V5defUPBgoA2mSK/xViWIC9hwT2KIW1U/EAjkhPnneij2Ol8qFKZxz/2",
+	"2VNZoLUk09NTqZwD9+E3j49YCgQN74hULqqIVByrUwecCd8llCSvVXMEffY7MTcC64lK5YwnM+4S2X3B",
+	"16GCcqNg6Y9qh6ZYm9T/XXuUESmdhnvUegGuKcZbaFUXTIemQTqkh2AiesbfQZKOVm1DZS4ozUKX6EWm",
+	"cJUpz92CUGq56zwhnXDQdYsg3O6Rr7UU9AWDCdzAKbdQG/AICYfNfMz17lAcJ/U+6W62zuy8uTYDwPHN",
+	"NRlyedZrspGYtazNqFTTWo1GFaDal/UJLwspjGWtajrhPmAGVMcY4OY0BrBOWOBi/wArvNi7uLyid6tv",
+	"oO9XHByS8k9Le0GFttFRyOW8N4hclfsNT2Vnjf4umat5v/W4QTboai8ZWChAvPahMijWfH+LfA9PLobi",
+	"dvA9KFoEE6pRQpD3HazD+77iuQ9vxVf2rn7ljeLOpC1yemkNbvlUl6cyzwXGEh7sP7j6jddav+Bq7kZn",
+	"fiZuHvj3I0ozkQa8ixEPd/z6ewiqaRlctxD9cB1I7Sbzx6IXtyABUAlJtEGMJfj7iEsFt6xWmUhqfulq",
+	"Y2BlSYprom9GziDgyoJJ4zxppfAtLREPcQkX2VrXxtSP0NF3ZVFu934t04EI/eUXfqUGB1e/8Y22TzFN",
+	"5W/0Dj70VYvgiEprKLjBxUigD8vDTNz27dxFh9Fad3T1nfTmPnAliZxhKXwXtVP7t7yiWlYq8XAgKMA7",
+	"p0rkvUID2mwmFOmkq27iQ5zCL/I64tCe66VWCVwm8+lK/gKuZHT00H2XOSLvb6C7TMtu4AZXzsmtLvxz",
+	"ps0HXTzKkTOMg0ZMo05YKVzYdWCCrWzKEG2sS3mGOTY+wMROPKusSxkUUpHXkEk0zae+mZEeg08I3gkN",
+	"BT7qM+TQm2LBKyGVFzwAJY1abw0j1KGAN8In0F4RjscHDLnoyJ5wZAfbGiqMg8fsNK1EMAxZKK7lfGCY",
+	"M4R6hDMjo+Vg2xGgsDzOaZTOyDzgkOXSI2facj59PY7qpjpVc6iwyCn3Pn4fIyZtEpwvfrZ3jHuKzGew",
+	"BYimxM1QmWomSiNyX400DA38GabdTCOgwa3xIVjsXC5743cKnsHetAucqcfhVCxfS80OFRnpOBotMJpW",
+	"iQA5w156dCdncowrwGYTLhXLuCIIRcyWYL2DwYNkqNA3lroUVTNybzvv3DEib/QO9vcT8smeEt6eF+Fq",
+	"v23goNDeUQiyGyoaPhRTebE3gLyG/f3txJlEotg6iJdzibXAh7bR25ui423kTlV6SGOgE4eBXMSk8dtw",
+	"xNCsooRPxQjV17BBd47NyKBdHk6UEhcQyGBZIbihRCL3jgsYc/eAF/D1nNqBpBT/y2hccowxoWam2li2",
+	"DzG07SK/fijgHg3Nwi0o4AI1J+GHkOlKwTRpTr6pbTcK6ZCMzQi8cvE0GlGd0YMpLR+Ooed2iRl5mfgt",
+	"2sZzXZdqoZ7AojbCmOCRULkZKSFyVzcqPXSTgeE2yAAsALzInH/b1aTxl28izybwmfZT8bKEoAv4BTuC",
+	"ueDb0OERWsegERcERWNxI0gw6A5Bll3+r4/+uJjMqajMmVCi5BiRlbq3alsbLvJ2l2hDRP2JZxQfKNwg",
+	"h/1K5/Mbk2vCyII00gz+d9iNLblq7+OoOTFiAIUVYP/PdbYkzfQVt5NAy93LCUtbfBvRZZpTTFZ5of6D",
+	"yXSDNWS6R1qNC4eudLC3xphe8Xmhef5a6+eQaknv3VtnAUw1o9KeL0Qu+es54Wse7O+v87Jz0oMY+ERZ",
+	"cHL8jUqtT9rRfA6cFvVJ7oVCf6YjafZddhOS7KzQtj9TZ2vpj9ew8fCpwNhG9INgZ+b8LHUze/XNb5mc",
+	"gv1zhW74qtD21Te/vU3tEMew61ahw9p8KhUnS9s6fmqc5Sd98Ge/WXBwIkUwYXSKbt0e40/5LVypkzrO",
+	"OYiBITtrysu3kBTmc20C7GDiM4vHErNJIEFV5aTL8Lrk3owrUbBTUegL0lfwWoSwL07hOxiYNVSKT1HI",
+	"pPZDklCUgAStOwfWVdf75NuPcL3N+dnnl9cKPPl0oX+hF/rk249zoetcgPXMPY1L3b7Dzxay3WBO1YxZ",
+	"Dahmgzo1JUqzcxNGVY8CYHitHVKMNd3m+pYzX86XccvS+vu01t5Qu/K63nafLQSI9tmreu6UNdROnONq",
+	"7rPLMNhggpx9TAWVuXUx+dAg+LphMRxROGoAow0VPCAMKm5EmlwVfYiG9YGqlJeF9UZ1ZY3MXRl6l7ko",
+	"8qEiDVCXRMgYJ0N8n8UGe8rCGkNGTp2O6PrBYNyhOhg8WK7VRYvyi9Pr6rFtpNgNbmUA1MUyR7Ezr81C",
+	"rk9CUWku7a3MRdnf+qSDfdLBbt2hHudyYCahTz2O2EvMBdbkMSt4iuM7N+A9eKERWNqRN0xKbtu8mdUs",
+	"dZlkjiF5YGpM9Rkq8vqRDS0XmbOfuJr8pJBCS6KznAZ7iE2j+d6Pw2EuE6nH4FRCbCUjHK9Nab242IxW",
+	"YrvPHjYYCuHIF1qdiXJxZhi+9uAQ5Vj4Br4YIwDoUB1jsSgTey8xf13pC2KepovEU/3vmwgQuHniTmP7",
+	"mQj7UosdjQqQSj4R60/E+tbdvO2M2Fv19C6AQd6wRk9BF3EvdQRGhwKAwdE2XRau+20LV/IXGE+xAOi5",
+	"ROluLPwn7fvnv3ffdifcd0ZarLBNr6mGJ+uo2Q18nuX3jD2LsAag2aFagh7g4OROuc0mlEcJNW7ijraP",
+	"Qgr/UEFhObqt6GP14KlwSycgNPVag3KucUy2afh3AdcgqiAOL7HeVHA0DaRhkwApRA9VLqlW9bZDjJjO",
+	"eEnl+ChDtpmafBjyfIYKUdMRHtrjpGMTv358NZ46hGgi+qRBZXyoEPj7r//1f205jGscoH68yKNQ0BUA",
+	"p9OEBMSh8qaIn/68P2C/9kEJ7M0Je/LqITv5bufLgy/YC2ydfTkYDB7HMEXNfTxajA2gYSFcZilzXKPE",
+	"h7ANVQOVB7/2sQQ+pO1hnf2KS+th3Sk1w4upINka3NqHncEazTAND47eBJUIURtDxS0cXop+AGLP2tEb",
+	"jcZ16VxEkfyP2ZIXrKzUUfQaxScgKpBxEIQLoSKuQiZ7qEJajFbB+xQFrjTIs/e80hCkpReEGaoeIrqg",
+	"lxzTvSmugmZstaagnUZjyVDBQ6RflJoQn3xwAA7eRSWhOQrmZEuuDMVRuPtFNRdxxw4GD5izVfvqPWRc",
+	"8rnrpDrEVXogxw3/GCltR/63dDsJSlYd2ANXnSu2uFR1I3FoTN1Eywzlnp1wMxpLiKGBdPBDhOeMN9th",
+	"O8XHKAqEgj4bdw53dRRdGAR54BSjs8S29W0ThvyXpf90QWF/5LiFLnD7NUSYEDirKwsU5pOu9ElXun2Z",
+	"7ZiEE96NllSDJa0pugUx6Gr/SQTvtPtD/eG9V64cSbylsIPIfIQ3nSJfbaNEsIMSJBwPbonVetfIUCl9",
+	"sX0Y8HpFKOAWOKYlJwMSZHyXuitDHOVQ9ZS26zALEuTgYc9tyIlLCbIui5Oi6dGEl1BhI249HnjkxcBZ",
+	"XXAZKjZ71HIzVHHN5WBJo4mNpBohcBWCfyk09Zkqm7Q5nhkqYsa6yEXJtBJ99l0LSpjah0BH4mr8TIwm",
+	"uiodrlAkOUnj2kG0Y1pA2omEqswRHCEOrI/lkR2yIwaslgJhReBB9Bxc6DI3q3zNz9RTTTVNNmNrtf6w",
+	"dXWW6vL4sk1STBe5yVQT4IHHUzxCOyY5xrCM+7IkQm43z6G89QQnvxWr8pzqrf+k/v/srGRxV+Cqcncs",
+	"b1T3v4qF3Kw//qFh6auXJ6/ZCrd/mpBiFBvj6nUYU6b9AnNJHVFIF9gLXF3ECR6q9LdPqOs1OWa67XDt",
+	"cPUBzjAAs6E/Jnvrh5ebTo/+N7o9fvShHAxVyDQh38xyHaGmhx/iCY+p6i3pC10D/eQW/6Q9fNIe1iH5",
+	"v684yCTzFbTvRv3jDn90LZ2gJfAXBC8R58aRmOqh907nmHq0zHHywnV9iwSAuljl8nDz/4SYcPM+w6KI",
+	"UKCbZyWO8XDPLD2/m3gnYhEDDbRw/ljmcj3DSd3rs1faWEI3otw0+BsfJhhpCLCrazeShVdas3DmfdOk",
+	"OV5Gv/T2B3uQ+CUQBKasp44pmklkYvUFZepokNAI1b0aqigttR66uOSZdWmErXHdMczdH6IjQ+UHqpxw",
+	"wjG+hGI1wBi6PxigYbgUhszmodYHVAWIPAxU0CJCiKhrbZoYeiwY8c1EX+AUoLAKI0M3GQBqFPtKyXcV",
+	"rb1UIOCSUgtxKivMpi88otBtiDHU+M8kuLiZddAs0lkzXnjjSmvnj8IOI7YHGUuRut2kQXb5+Ojauf3T",
+	"5YdllXlGkkacavcHODb/0dLKPoliv8AIRbw8gRoltdsvFnmoXNamzKwpfbkzfQNCWOLLr+sA3RMDD6TL",
+	"UVuJknZBzoHXrrZs4T+3Y3F7yMxMZGAzj8hZROPWsLtFOXv1iGossb2D+wdf3v3i4P4VkGLf/yy0vZZH",
+	"Pxnffv7r/1L53bj+/Xa61+Yel+6QNWTnju7USBm1IEk++gClEFXYThAcg3BzmFTkw8fihmjbwMIC78DM",
+	"1YQXeqUd4gU5EBr4eZ2om1g6BvDJ8ZYe1vE1iAwC8nDzHcT7vgD/ghGW9dBn6zDooQ9XqNLpwEaXDJr1",
+	"NdhScN1PdSlS76IQiLMJXzmMIHYhSuHBIFimp66yxVA9xagXEJSaIzJC+Jpy2EQQs7XKxKFvFkvYUEVV",
+	"QoVAmluSW0XIMg6QMK5ftCFymhdsRTlULriHK9eXdzqFgSLpK/uhIgg9Jg2iBFuhfNdRd9QIwtKDk+oQ",
+	"o69Q5Af4EAxe8dlOGGXVJyERnHzu+z7PIUYjpR9cFAZZjEOIRd+HVyXLPZ3uyfjXdBshUjs9cuGF8FM8",
+	"CAxlsTHaTA0DA0OHU+4Lt4eHY0egVlTto9MWcYwNPcHNXWSD14GXPHKcqh4K3AD/6FiIfBkPwzu0Of7k",
+	"jUJw7g0Gy8sFfmyOSZvzVHRHfcTwl38bwGB/i7IwsRY4trDOzTi6RhA4fXM9Y2RZre1diupaLeRr69JZ",
+	"ZIDc9aKqizU0l6N0FAQwxhghJeoKjEChyEbRQgK7E0DiI5Hb89OaBh8yzvYHe+D958pEVZ8axB1jHSvl",
+	"8nZUVEyPqu1AVRQXskkjq+u5OIOQLikQkvVCRfUEAYrC1jIBxQoTZrWGmqVDhQ+ZbfJOAaAV+agSXz/N",
+	"BVPGGUXNXM1DVvKLocq55TVomZ2U+kJBEMQcQn+jakGsd3B5uU29BPNTBFd1KubaQQzRfSerz2G06Gxa",
+	"GV8LkGAejaU1rfepxhQ78mYkWJKQJO+hzwp+KgqESOSlQZ4+VL0FICfDzjSVJIoCgemw2AtXY9b4onlU",
+	"5p4PVSMG+MhfEpk3bFxRfU9XvelXLCrfM1QnAkSbhYo+VrMpGN5KYUspYDfGgkDSsXW8Yj7iZqioXBRK",
+	"AoYECzHF4QPyFBUB8thT+wcMA0U8XhoSnDtosVNnopyVkiQOzk6+frizf++Lw7iIEGFShsVnHLhfaQi/",
+	"bqiEynRIq2A9rIEtLZaqzSgodCrg2DvZya3olFsryu0j6miooI5T3BHysbqckgkgVSW/oGpTp3MrqFDh",
+	"CZ8KqPeTeAD4MKmEpFw/5VCqLKez99lnHihuqFi4UJ99RhV7bFWqel77g70W0DyOAoVUb+pydTfxscb2",
+	"HotZwefYbVmJFCx4zIgMbgWsaO1Gbk7Hm6dtPKdDLGkUPxhVpWhONxAA8CsVUPOZ5u26xnAmGDCFEPtL",
+	"ZeszwqycCoyn9RUCSpwJRXzrkiGi38HgAaKX0bybdSwkaCo1sNdYKmkmMB5oGWfxsO4MzrIjTkBSoIN7",
+	"QFnC62C3Rs3nrZiHqwVHp5disZnMnKfbUMNKzRuVEKHyTWnhyT77Dkf5iKSWHbB8HbLwco1aOFSu+per",
+	"oUnx617XWTieKdExELHrjrGecaPoQs8zTKI0qa+4k7IeleLmxfaRgyJI2+JU6sLLo26RbJ4KL4j2DgaD",
+	"7WA4wgMqDXvz+unOl1BQqiDSh1dnh64joJvAM1QwNN+mQKiDvS8HQ9VzU4d8jFOYsw7AmelwKz1iz5/C",
+	"Fj06fv6UCqQJlQPewXOpMJ1BG3cghyoU3YS+0l+lHvSAtgeWAr4wb+VsJvIjV3O7wHaiH/o0LzrkVHAB",
+	"+3X6I21Ynz3CWm8meCcJ2VLNiQK5AptUEA7rRdKOsB9rvQYC5H8MIpC+WKi8GapvvpUKC2DOBdR+TH0L",
+	"KX7A91NfMdJHrfiH3RdRkdQlX+LryJDql/Fj81XSqenpVhk9/5bPTmn8nLC//tf/jQ1aLYTKduFlDByM",
+	"KmG7w7T8h6EKiwDF1LD/upeaebZm6vNwFl7wP7jq5wmVWBVswHr0CIlie9tUX3OHvYygI2eihJ0EeFVf",
+	"eN7Vf52h9skQ7LBB4RGbMGwb3le3C7HESf4wvIieQgpum400t2PbW3Dh93YP0Xr16G8Tle/Dblo9RCu2",
+	"3WfH+sJxWlcaDvh1kH6gJfwVSS8Gn9E9iPuVpr4UZJBVc7wFKCLQg43i0JURULsXespFJqe8IExarNbn",
+	"6RoSYYVUKt3r3xM7d9NtSrxiQNcqw1VuPGqkxgIu3/BvgKA+U+MQ4soK+VbEhXsJ84zKDYcVQbQSzDuT",
+	"CoUYx2mwUmSzrAsQ2TkB+BqY5B3D4E4Hyooni15XccHQvHJLmvslJFLDfaXReg3pd1e/GtbRyeE1eyfF",
+	"AGSfULGZq4imOccEEDvC7cSsfXzoYPDgC5KFojqDDiF25ipvrl0Yk45H9/PpdjgzuMaExA5rjFIirWMP",
+	"MtcQbieI2VRH3xFWIltgH2IhCgtegfKM+JtJWGjCa3AeUgsYPfI0cl87aFdoCiqIwBuoseBFJhRXEpNc",
+	"vUpQWJz9SjjtMbSIBfEIFlCrHaIm5Fk8CmCpfI6S0KmmCGtUmcj5EtXhumOwUSoWVEYxANCEA+tF662r",
+	"TenPgl/yfr+f+n0jm+AlrsLhUKVpOlS/crIMdRxR3dlEW41Swc4e6znWushCt4cKjnfitSZSKJv8wJP+",
+	"JNCExFOYofJbmSgJz4vk+V4y6N9LBv3B3mA/SVY+MXjwZfcT+8lefwBP7A/udT9xN9mnJw729vAJOj3+",
+	"9wRfvjdIvtsZDA72lzywd/cuPXA32XcLuiTw4LjaPE0rkvh/J+Zbi+Y6OBl40oIYiCzDpes5TRjjqZaY",
+	"8z6wwNImo4mOVs2hl43rBmpUrTu2kBWBZhVep47UIfzLRhlJ4jdQ/qgeYpDcYXQamE8rJ2bZgLz0v/ai",
+	"vfQvvL81KJQqiuRNtrxi1GxgcSGQ88OXpyInEglznkr1XKgzO4kNyjEo4MfLLzyurkorLKs6m9BnJZWh",
+	"nE4P5E1Hq0unzQ/Vgg0nIW+Ue8mxhgDh7zbMuSiiWJkuW8HiQqdoPPDlLqXxeo/rza8dug4Vq6PSsNOW",
+	"8QIU6HXCa061LgRXeBjWi+hxKdIupKes1H9IkOhP0Ty/QCBLbSzj4SKPpY0uc+zBqFbFUsfZmB3Oiw1K",
+	"dy13YHh64x3P3BsAD3HEXuh3JTVa5QrI7Br8M/Rdwz9dikxITGhsErRlRV2vIescV+q2IW1gWMtp9af4",
+	"mV9CtS7nD6DDe6NX7KYDa+iRZmEab19p3h4XdwGWolCBZqgCQquroefFUG/FMsHLtpjWERXYc+AVeXrk",
+	"oki8TzCuDATx013RE740EbV6JkFGQY3SDcKHLjbK6zRrN4RMYbCku1TgqLpOFE0R7OvHcZTRUD0WJdCW",
+	"Nq6OpzS/f5TEnoiqaCSMm6ECCxGQrIS1EuOwfI0LaQqlTIZqrx/1ctEY4tLM70OW+klBFab9uIlMV0XO",
+	"Gk7W1uN32z0GIBOpXJBM642D+A3nwYDFmALltrqcewcrR7dLsDxh2nmrrXv9OCCyO+4mQCI10uWdocKd",
+	"BkINinwPNK64t6SNgYOvN7rsBdjkRUybUpBTRhQEtYR2TTRyLSDneKlw2cmWbkngOWyAXp6IUgBLXIKQ",
+	"4+s5tYFysAVsGyKgGick02UpMouGTG9jwK6bGtsd9IuxvJRju+2iurzbHHbSL7m0nTWj3KJhG7ReFLEF",
+	"rx4N1RfxcWmgChyyFA4FLgov4Djcj5+NwApYL2gjcFMS8rQFvAIaLFRtYszfKqDgjVjDEEyIV5vJKEwN",
+	"ALJ8Cq2jrmmgCC+p1jWqzWaoyKP2EPNHDlnM8McTWX7uXVc1KBP60tDa9vTrZ8fs+ADIa1EICm5Lv6pU",
+	"Dn4TGMPLUyPKc7KbG9YjpOpQ2+rNozcvGJblJqDrytRkqREcecjqJWB//Z/+hcBMExYtNnyN8Y9g2FS8",
+	"dDXx8XTDGxlXYD52HjACGcLhHLE0F8AoU7qB9SnCX5BaPsVC6WEjt/usuWgNB+R8qPwKeWccGhXdhju/",
+	"ZKkvvIRYm7X5UJkZcEEzEcKyC6R18JmWG7asKjj6L0qMGMQ2f5OwzxO2k7C/S5jlp0OFXr2AnsEdk9pm",
+	"s1KM5aVbAjgsfKaNLfVsIhyqV8A/dzyKA/vTtFDkZ27kHeGS0H5TWSiyJXsmBbOG5CKoXddessud+KRN",
+	"ivs75/ufi/I+LaE/Y0P19fP77Hy/f6+/x9KXx2/+eDzYS9lUGMPBRSAVe3J8n2EQAzIlrUSUI8x6L06+",
+	"Tobq5VfH9NPLr/4Bf6apHtLEEjqIlQKvOP3igNkTpusDPFRWgovAJxuAZDSbYrQrtu0phSDfpsOlN+IM",
+	"nmFCEcdDMGBelhIC4ihKAeMJXjx//oqNSwLl0iBMfP369StITFchdsZOSlFjwnPFKpWJ0nKp7JydVvmZ",
+	"sGwuXJRABHBVg94TcghujvOrLNEojkPg2EdQLAKdWWWneuipjT9wsCjzmWA17enXhj99CjwfBd4PtKbR",
+	"Oiy3pi1YGreWHe1rFNlwJPeTtvTza0snTWRCCvCv1I2GVpLq5MSPD4+zpHYicTNQKG99h/ZBGOEtdE8v",
+	"JZralwOhIRjhLg17Rznw0omwKhNttalRMtOBF/rYiNoB0KuVOfDLjl1YUpTHG0S/OqrcORSd2bQulFkn",
+	"W9TCyp12lgXw9yWxoGx1KCisaFMil2ZBj7zg9XL7+HJSqIB3+Oj4EN7lLT2II4qalTAuVGAZFqvzdw9V",
+	"1GvPCBHJe20dHOIK/FlwG15njMA2SGtEMUaNAFKH0SbgZxqpeZW6MirUMT2HLUkVwEWRu2BR6AsroQSM",
+	"UBdJ4Y7GUYhPYDJvhIDGQZnoHIa2EhC0QAVyYGRe15E25JNMuIkbdWqKnxppAUNVz265O9Et4AcxxJv3",
+	"97hR/Uyojw3+2Mm/gvpJR0WWjbrALmryE2zLJ+/C7Rs78zycRqsjP8M7j+diJ2K6CTdfYQZ1He3+EEIw",
+	"3t+wIXRcx6ARuUwYz0ptDMyL7ptHrSCuiWZSX9E8spMesSuYR+jKMVKnf6ApSOY1AjSNi1CzPAMgPOE6",
+	"Nm2JvkFUbKnKsUhWAOCrMfUFxuZ+Da77Zop0GNHN5EnfphuluTaf1IRffOXa9i3lrdN6YwqDFwp3ptyK",
+	"UvLiBp0trtZGbbF2XWBQdqbzpZBRvhbnizCm27wbrc5Wwkj5AX3KPbwVIKmFo7IJgtSSg74xoFQmSqeW",
+	"lsIjQ/nxwFE3VmdvmdEuEN0Z0lDNda9maG1O0S6YumQJcTnjKhf5KDK3uQphKdaQAChfCmpPXahvGgo7",
+	"pKz3058ZT2rNqhSZ5eqsKniZDFXFfsP47l//+b/dhRpf7RHqsmHHo/jbWSlmvHQ+PEiwo1yKMFFCbZIW",
+	"PXL+4dEYbdg+O8/N2v3s8gyMFTPwuBQSkkVcFAbY1s8hypjMrdPngcfKcqjCPM32EYu0/ATNqdiENx5D",
+	"Nn9t359xhwZNP//GfcF++gv7t/+FuSHsYvfbwTtZioJbeV7XCBmqaE9AWT/FiNm6gzsuKQDVUpoGlAfY",
+	"7cGK//SXb7eHqvf3j377AkKW2U//x73+Xv+LI/akKjnQmN1Hz14/fMR+/+bhCyjn1mdP+nsQpO+QwNCF",
+	"RjgBLq/9EIuN5qhqYiQ3Kq+9g8GDFShZbTJ2S3hZ7W5+JqVxYbZLZRrHhPy5vh5AVWBcaTfP3P0B9utT",
+	"fNsnDfSjlR1YYJXXh69Zep4/VBTsVNMW6dTVaFQwmr8BLWtNolTTok+a1i8B/ulDrtJq7Qrz89f0wcR1",
+	"zI2phGGclVzlIOpAM6wXcvn39r9kp9Ka7dpSAYFgiuABKMV/qIzISmGDtxY9BT46XBXzo5CyJEqP2wDf",
+	"o4zkMACGasLNhIIAMDat0GeGSbtcDHkNQ70l2QPb/pkEDuz7iuwB3Kakdia5DYDgBYUy3C/9wn9i4LdP",
+	"cPBuM06HJSI0jlSsybLp6RCHnotCWLE2fTkW5/qt03CwpSOXjFinjg72tms1y0EeO5R8V8MuyoP1jrIS",
+	"282pTWfF7SIVj3G4nlRczf4/wMT65s2zx51s/2BxtWhZPqEy/iLEXNiKD78mpVC5uc1KWMaBwy6pftVE",
+	"WozCndFgMVQQ3hjOf1TEJDWFnkG6NeZhnnIjYpALLF8KvTh78MljbKkOuU79G2kdK1oPF567kCrXF3WH",
+	"+wNAbQRWWerC53UbiUWjfvrzPjt5zHoXvFRSnZEl5ac/38UvKfphG90nWoFX/mQiLia8tBBbWlrWe3by",
+	"kt3/8v5gZ99N5zth7Bkms2AQwN7OvqkbT9jezl2AO9jf2TcJO945MAk72Nkjd9Te4BLSQSEsaxstJwIW",
+	"klNMfr2wphkmbygwEtPy4lJgR63ylGSMKWRwAg1VGjo4ZGNeGCridS51QcY0byYzdf3LCO4dAkXOdYHB",
+	"GRi5OBYXPmkfEKbam2MnonQRBmHTIeub9gODRVRVFC4qk7qUpl6EPntICfFsD3Ph61kNFRzsIwb5gyoj",
+	"qEWPpqniE4Gxrgit2VO8RMQH69cCrX+wiXitmGPoSSQfYlpkJpLFerH6Qg3V7x8xZOR5VQpDeU6NSrEJ",
+	"KwXYNK0uu4rGdmuUOJolfGRVjvLNYBt/jIplXX2E2a6dOIzr9Cq81pHO/ATTRYF+xCFK4PPF+KnzpTnp",
+	"cDBuIJ36ObcdvYvLK3q3+gb6/lpfsClX8/adTFrgtk0CmhBam42I9LJR+t+7kTj3YyDO/QYO5/5HxuGk",
+	"+7QsFkeUEhYFrq6fURJwQFRek8ZPPrKbF4sel3JsvcThYCz9haZ4b4ouRzGjxcxhc5qcNxKr6KzfUHU5",
+	"krp2Z4W2fXN+dkviF/bSyFGhftNWlnvNFhKWl/yCAhNrWQellMNYdnDIdBTiQqwsE8qiaKAcbyOZaKgi",
+	"UYjWOaTX+dZQ9KBbITBiqBCIuOaxExGqsgDefdwhjChtadSrmN+rQtuTb3/7iQd+4oGfeGDEA+WUn4ld",
+	"c372+eW0uEbiBJKGT2zs5mGmY9JLSRBIuxNGVOyGuRL0LbKqBKshUMVTwUtRPqzsZOvwD9+//z502L4P",
+	"dY1LCojU40YgRR1Q36uVcbPdr887vNWBAfWUYJ3jtvxFo/jmKFMYuKiJmnRrstjoM3UuSiNYXSwQxuut",
+	"dA10r7i9+vGuRn//0Je6hrHwKpdYCVUW/WYxFnHR9XKd4NFEEk9CGHeUVRH4ZlaDkDd6ccGLC91825nk",
+	"kNRZHzVwcLv2cWj9XdbRMBUwwypczg0URa2wulYam+lCZlLEy+pe6Gr11TOyasWP0xcdTz8Hv44wAdUc",
+	"/5wKW8rMT0salussgEw1cKVoW79///8NAA==",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,

@@ -33,6 +33,9 @@ type config struct {
 	ReadURLs      []string
 	MaxReplicaLag time.Duration // above it a replica gets no reads
 	CheckInterval time.Duration // how often recovery and replica lag are checked
+	// ClockSkew is how far ahead of its receipt a claimed measurement time
+	// may lie (lab.DefaultFutureSkew unless set).
+	ClockSkew time.Duration
 }
 
 // usageError is a bad command line or setting; it exits with status 2.
@@ -75,6 +78,7 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	readURLs := fs.String("database-read-url", env("DATABASE_READ_URL", ""), "comma-separated PostgreSQL URLs of read replicas (hot standbys of the primary) for lag-tolerant reads (DATABASE_READ_URL)")
 	maxLag := fs.String("replica-max-lag", env("CURVEKEEPER_REPLICA_MAX_LAG", "10s"), "a replica lagging more gets no reads (CURVEKEEPER_REPLICA_MAX_LAG)")
 	checkEvery := fs.String("replica-check-interval", env("CURVEKEEPER_REPLICA_CHECK_INTERVAL", "1s"), "how often the service checks whether its database is a standby and how far replicas lag (CURVEKEEPER_REPLICA_CHECK_INTERVAL)")
+	clockSkew := fs.String("clock-skew", env("CURVEKEEPER_CLOCK_SKEW", "24h"), "how far ahead of its receipt a run's, sample's or verification's time may lie (CURVEKEEPER_CLOCK_SKEW)")
 	cfg.BootstrapToken = getenv("CURVEKEEPER_BOOTSTRAP_TOKEN")
 	// Flags may come before or after positional arguments ("migrate down 1
 	// --database-url …"): the flag package stops at the first positional one,
@@ -116,6 +120,7 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 		{"--migrate-lock-timeout", *lockWait, &cfg.MigrateLockWait},
 		{"--replica-max-lag", *maxLag, &cfg.MaxReplicaLag},
 		{"--replica-check-interval", *checkEvery, &cfg.CheckInterval},
+		{"--clock-skew", *clockSkew, &cfg.ClockSkew},
 	}
 	for _, d := range durations {
 		v, err := time.ParseDuration(d.in)

@@ -43,7 +43,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 	if err := store.MigrateUp(ctx, dbase.url, cfg.MigrateLockWait); err != nil {
 		return err
 	}
-	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout}, lab.NewService(db),
+	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout}, lab.NewService(db, lab.WithClock(now)),
 		slog.New(slog.NewJSONHandler(io.Discard, nil)))
 	if err != nil {
 		return err
@@ -58,6 +58,10 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 		if err := d.do(adminSecret, http.MethodPost, "/v1/methods", m, nil); err != nil {
 			return err
 		}
+	}
+
+	if err := demoRecordMaterials(d, adminSecret, now()); err != nil {
+		return err
 	}
 
 	var existing struct {
@@ -77,6 +81,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 					Verdict string `json:"verdict"`
 				} `json:"curves"`
 			}
+			r.StandardMaterials = demoRunMaterials(r)
 			if err := d.doKey(tokens[lab.ScopeRunsWrite], fmt.Sprintf("demo-run-%03d", i), "/v1/runs", r, &created); err != nil {
 				return fmt.Errorf("demo run %d: %w", i, err)
 			}

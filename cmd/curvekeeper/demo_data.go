@@ -71,7 +71,9 @@ type demoRun struct {
 	Operator   string         `json:"operator,omitempty"`
 	Standards  []demoStandard `json:"standards"`
 	Samples    []demoSample   `json:"samples,omitempty"`
-	Note       string         `json:"-"` // what is special about this run
+	// StandardMaterials: the stocks the standards were made from (demo_uncert.go).
+	StandardMaterials []string `json:"standard_materials,omitempty"`
+	Note              string   `json:"-"` // what is special about this run
 }
 
 var demoMethods = []demoMethod{

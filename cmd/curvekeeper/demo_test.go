@@ -59,6 +59,17 @@ func TestDemo(t *testing.T) {
 	if n := count(`SELECT count(*) FROM runs`); n != 30 {
 		t.Errorf("runs = %d, want 30", n)
 	}
+	// The demo lab's certificates and stocks (demo_uncert.go): every run
+	// names the stocks of its analytes, all in date at the run.
+	if n := count(`SELECT count(*) FROM standard_materials`); n != 6 {
+		t.Errorf("standard materials = %d, want 6", n)
+	}
+	if n := count(`SELECT count(DISTINCT run_id) FROM run_standard_materials`); n != 30 {
+		t.Errorf("runs naming their standard materials = %d, want 30", n)
+	}
+	if n := count(`SELECT count(*) FROM curves WHERE 'standards_in_date' = ANY(failed_checks)`); n != 0 {
+		t.Errorf("%d demo curves failed standards_in_date", n)
+	}
 	// The runs lie in the four weeks before the clock's date (2026-02-06 to 2026-03-05).
 	if n := count(`SELECT count(*) FROM runs WHERE acquired_at >= '2026-03-06T00:00:00Z' OR acquired_at < '2026-02-06T00:00:00Z'`); n != 0 {
 		t.Errorf("%d runs lie outside the four weeks before the injected clock's date", n)

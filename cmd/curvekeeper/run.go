@@ -168,7 +168,7 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 		rateLimit = -1 // off
 	}
 	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout,
-		RateLimit: rateLimit, RateBurst: cfg.RateBurst}, lab.NewService(db), log)
+		RateLimit: rateLimit, RateBurst: cfg.RateBurst}, lab.NewService(db, lab.WithFutureSkew(cfg.ClockSkew)), log)
 	if err != nil {
 		return err
 	}

@@ -1,0 +1,93 @@
+package main
+
+import (
+	"net/http"
+	"slices"
+	"strings"
+	"time"
+)
+
+// demoMaterial is one invented standard material of the demo lab, as
+// POST /v1/standard-materials takes it. Suppliers, lots and values are
+// invented.
+type demoMaterial struct {
+	Code         string           `json:"code"`
+	Kind         string           `json:"kind"`
+	Analyte      string           `json:"analyte,omitempty"`
+	Unit         string           `json:"unit,omitempty"`
+	Value        float64          `json:"value,omitempty"`
+	Expanded     float64          `json:"expanded_uncertainty,omitempty"`
+	K            float64          `json:"coverage_factor,omitempty"`
+	Lot          string           `json:"lot,omitempty"`
+	Supplier     string           `json:"supplier,omitempty"`
+	ExpiresAt    time.Time        `json:"expires_at"`
+	PreparedFrom string           `json:"prepared_from,omitempty"`
+	PreparedAt   *time.Time       `json:"prepared_at,omitempty"`
+	Preparation  []map[string]any `json:"preparation,omitempty"`
+}
+
+// demoMaterials returns the demo lab's certificates and the stocks made
+// from them, dated from end (the scenario's now): certified 1000 mg/L
+// single-element solutions, and working stocks diluted 1 + 99 with class A
+// glassware (tolerances from memory, common practice), prepared before the
+// scenario's first run and in date through its last.
+func demoMaterials(end time.Time) []demoMaterial {
+	end = end.UTC()
+	prepared := end.AddDate(0, 0, -demoDays-14)
+	step := []map[string]any{{"aliquot_ml": 1.0, "aliquot_tol_ml": 0.008, "final_ml": 100.0, "final_tol_ml": 0.1}}
+	out := []demoMaterial{}
+	for _, c := range []struct{ code, analyte, unit, lot string }{
+		{"DEMO-CRM-PB", "Pb", "mg/L", "PB-2291"}, {"DEMO-CRM-AS", "As", "mg/L", "AS-1187"},
+		{"DEMO-CRM-NO3N", "NO3-N", "mg/L", "NN-0402"},
+	} {
+		out = append(out, demoMaterial{Code: c.code, Kind: "reference_material", Analyte: c.analyte, Unit: c.unit,
+			Value: 1000, Expanded: 3, K: 2, Lot: c.lot, Supplier: "invented reference supplier",
+			ExpiresAt: end.AddDate(1, 0, 0)})
+		out = append(out, demoMaterial{Code: strings.Replace(c.code, "CRM", "STOCK", 1), Kind: "stock_solution",
+			PreparedFrom: c.code, PreparedAt: &prepared, Preparation: step, ExpiresAt: end.AddDate(0, 3, 0)})
+	}
+	return out
+}
+
+// demoStockFor names the demo stock of each analyte, for a run's
+// standard_materials.
+func demoStockFor(analyte string) string {
+	return map[string]string{"Pb": "DEMO-STOCK-PB", "As": "DEMO-STOCK-AS", "NO3-N": "DEMO-STOCK-NO3N"}[analyte]
+}
+
+// demoRunMaterials names the stocks of the analytes r calibrates.
+func demoRunMaterials(r demoRun) []string {
+	var out []string
+	for _, st := range r.Standards {
+		if c := demoStockFor(st.Analyte); c != "" && !slices.Contains(out, c) {
+			out = append(out, c)
+		}
+	}
+	return out
+}
+
+// demoRecordMaterials records the demo materials; those an earlier demo
+// recorded are kept as they are (records are never changed).
+func demoRecordMaterials(d *demoClient, admin string, end time.Time) error {
+	var have struct {
+		Materials []struct {
+			Code string `json:"code"`
+		} `json:"materials"`
+	}
+	if err := d.do(admin, http.MethodGet, "/v1/standard-materials", nil, &have); err != nil {
+		return err
+	}
+	known := map[string]bool{}
+	for _, m := range have.Materials {
+		known[m.Code] = true
+	}
+	for _, m := range demoMaterials(end) {
+		if known[m.Code] {
+			continue
+		}
+		if err := d.do(admin, http.MethodPost, "/v1/standard-materials", m, nil); err != nil {
+			return err
+		}
+	}
+	return nil
+}
