@@ -288,7 +288,7 @@ func pointers(p api.Problem) []string {
 // token issues a token through POST /v1/tokens and returns its id and secret.
 // testInstruments are the instruments of the tests' invented runs; a
 // runs:write token from env.token is bound to them.
-var testInstruments = []string{"photometer-7", "photometer-8", "ic-02", "ic-07", "i"}
+var testInstruments = []string{"photometer-7", "photometer-8", "ic-02", "ic-07", "ic-09", "i"}
 
 func (e *env) token(t testing.TB, name string, scopes ...string) (id, secret string) {
 	t.Helper()
