@@ -122,6 +122,9 @@ func (s *Server) authMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 		if len(need) > 0 && !slices.ContainsFunc(need, p.Has) {
 			return newProblem(http.StatusForbidden, "this route needs one of the scopes "+strings.Join(need, ", "))
 		}
+		if err := s.checkReach(c, p); err != nil {
+			return err
+		}
 		req := c.Request()
 		ctx := context.WithValue(req.Context(), principalKey{}, p)
 		if status != "" {
@@ -143,4 +146,24 @@ func bearer(h string) (string, bool) {
 		return "", false
 	}
 	return tok, true
+}
+
+// checkReach applies a bound token's instrument binding (lab.CheckReach) to
+// what the route names: an instrument in its path, or a run or a curve by
+// id. A run posted with a body names its instrument there, and lab.Ingest
+// checks it.
+func (s *Server) checkReach(c echo.Context, p lab.Principal) error {
+	if !p.Bound() {
+		return nil
+	}
+	path, ctx := c.Path(), c.Request().Context()
+	switch {
+	case strings.Contains(path, "/:instrument"):
+		return s.lab.CheckReach(ctx, p, lab.ReachInstrument, c.Param("instrument"))
+	case strings.HasPrefix(path, "/v1/runs/:id"):
+		return s.lab.CheckReach(ctx, p, lab.ReachRun, c.Param("id"))
+	case strings.HasPrefix(path, "/v1/curves/:id"):
+		return s.lab.CheckReach(ctx, p, lab.ReachCurve, c.Param("id"))
+	}
+	return nil
 }

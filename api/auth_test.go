@@ -141,9 +141,12 @@ func TestScopeMatrix(t *testing.T) {
 	run := e.run(t, e.admin, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 1)))
 	curve := "/v1/curves/" + run.Curves[0].ID.String()
 	n := 0
+	// Fresh curves come from an instrument token, so that every caller,
+	// admin included, may review them (the four-eyes rule).
+	_, poster := e.token(t, "matrix-instrument", "runs:write")
 	freshCurve := func(t *testing.T) string {
 		n++
-		r := e.run(t, e.admin, runBody("nitrate-uv", "photometer-7", baseTime.AddDate(0, 0, n), standards("nitrate", uint64(n))))
+		r := e.run(t, poster, runBody("nitrate-uv", "photometer-7", baseTime.AddDate(0, 0, n), standards("nitrate", uint64(n))))
 		return "/v1/curves/" + r.Curves[0].ID.String()
 	}
 	jsonCall := func(method, path string, v any) call {

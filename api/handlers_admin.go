@@ -141,6 +141,7 @@ func qcFrom(b *oapi.MethodRequest) lab.QCPolicy {
 	if b.MaxCurveAgeHours != nil {
 		q.MaxCurveAgeHours = *b.MaxCurveAgeHours
 	}
+	q.AllowSelfReview = b.AllowSelfReview != nil && *b.AllowSelfReview
 	return q
 }
 
@@ -181,6 +182,9 @@ func methodOut(m *lab.Method) oapi.Method {
 		},
 		PendingCurvesInForce: m.QC.PendingCurvesInForce,
 	}
+	if m.QC.AllowSelfReview {
+		out.AllowSelfReview = &m.QC.AllowSelfReview
+	}
 	if m.QC.MaxCurveAgeHours > 0 {
 		h := m.QC.MaxCurveAgeHours
 		out.MaxCurveAgeHours = &h
@@ -204,12 +208,22 @@ func (s *Server) CreateToken(ctx context.Context, req oapi.CreateTokenRequestObj
 			scopes = append(scopes, string(sc))
 		}
 	}
-	id, secret, err := s.lab.IssueToken(ctx, p, string(req.Body.Name), scopes)
+	in := lab.TokenInput{Name: string(req.Body.Name), Scopes: scopes, AllowDualRole: req.Body.AllowDualRole != nil && *req.Body.AllowDualRole}
+	if req.Body.Instruments != nil {
+		in.Instruments = make([]string, 0, len(*req.Body.Instruments))
+		for _, name := range *req.Body.Instruments {
+			in.Instruments = append(in.Instruments, string(name))
+		}
+	}
+	id, secret, err := s.lab.IssueToken(ctx, p, in)
 	if err != nil {
 		return nil, err
 	}
 	out := oapi.CreateToken201JSONResponse{ID: uuidOf(id), Name: string(req.Body.Name), Token: secret,
 		CreatedAt: oapi.NewTimestamp(time.Now().UTC())}
+	if in.Instruments != nil {
+		out.Instruments = &in.Instruments
+	}
 	for _, sc := range scopes {
 		out.Scopes = append(out.Scopes, oapi.Scope(sc))
 	}

@@ -288,7 +288,10 @@ func TestQCLoopWholeBatch(t *testing.T) {
 	}
 
 	// 5. QA approves the revision: the results not held by QC become releasable.
-	e.must(200, "POST", "/v1/curves/"+rev.ID+"/review", qa, map[string]any{"decision": "approve"})
+	// A second reviewer approves: the one that made the revision may not
+	// (the four-eyes rule).
+	qa2 := e.token("qa-second", "curves:review")
+	e.must(200, "POST", "/v1/curves/"+rev.ID+"/review", qa2, map[string]any{"decision": "approve"})
 	rs = runResults(t, e, lims, run.ID)
 	wantState(t, "approval", rs, "releasable", "S-01", "S-02", "S-03", "S-04")
 	wantState(t, "approval", rs, "withheld", "S-05", "S-06")

@@ -14,6 +14,7 @@ import (
 	"log/slog"
 	"net/http"
 	"net/http/httptest"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -106,7 +107,11 @@ func (e *qcEnv) must(want int, method, path, token string, body any) []byte {
 func (e *qcEnv) token(name string, scopes ...string) string {
 	e.t.Helper()
 	var out struct{ Token string }
-	qcDecode(e.t, e.must(201, "POST", "/v1/tokens", e.admin, map[string]any{"name": name, "scopes": scopes}), &out)
+	body := map[string]any{"name": name, "scopes": scopes}
+	if slices.Contains(scopes, lab.ScopeRunsWrite) && !slices.Contains(scopes, lab.ScopeAdmin) {
+		body["instruments"] = testInstruments // instrument binding is required
+	}
+	qcDecode(e.t, e.must(201, "POST", "/v1/tokens", e.admin, body), &out)
 	return out.Token
 }
 

@@ -47,7 +47,8 @@ func TestQCStateSurvivesRevision(t *testing.T) {
 	qcDecode(t, e.must(201, "POST", "/v1/curves/"+original+"/exclusions", qa, map[string]any{
 		"points": []map[string]any{{"level": "L4", "replicate": 1}}, "reason": "L4 first injection shows a shoulder",
 	}), &rev)
-	e.must(200, "POST", "/v1/curves/"+rev.ID+"/review", qa, map[string]any{"decision": "approve"})
+	// A second reviewer approves the revision (the four-eyes rule).
+	e.must(200, "POST", "/v1/curves/"+rev.ID+"/review", e.token("qa-second", "curves:review"), map[string]any{"decision": "approve"})
 
 	rs := runResults(t, e, lims, run.ID)
 	wantState(t, "approved revision after a failed CCV", rs, "withheld", "S-40")

@@ -20,6 +20,7 @@ import (
 	"net/http/httptest"
 	"net/url"
 	"regexp"
+	"slices"
 	"strconv"
 	"strings"
 	"sync"
@@ -287,9 +288,20 @@ func pointers(p api.Problem) []string {
 }
 
 // token issues a token through POST /v1/tokens and returns its id and secret.
+// testInstruments are the instruments of the tests' invented runs; a
+// runs:write token from env.token is bound to them.
+var testInstruments = []string{"photometer-7", "photometer-8", "ic-02", "ic-07", "ic-09", "i"}
+
 func (e *env) token(t testing.TB, name string, scopes ...string) (id, secret string) {
 	t.Helper()
-	r := e.postJSON(t, e.admin, "/v1/tokens", map[string]any{"name": name, "scopes": scopes})
+	body := map[string]any{"name": name, "scopes": scopes}
+	if slices.Contains(scopes, lab.ScopeRunsWrite) && !slices.Contains(scopes, lab.ScopeAdmin) {
+		body["instruments"] = testInstruments // instrument binding is required
+	}
+	if slices.Contains(scopes, lab.ScopeRunsWrite) && slices.Contains(scopes, lab.ScopeCurvesReview) {
+		body["allow_dual_role"] = true
+	}
+	r := e.postJSON(t, e.admin, "/v1/tokens", body)
 	tc := decode[oapi.TokenCreated](t, r, http.StatusCreated)
 	return tc.ID.String(), tc.Token
 }

@@ -160,6 +160,12 @@ func TestUIReview(t *testing.T) {
 			t.Errorf("got %d", r.status)
 		}
 	})
+	t.Run("a reason with an invisible bidirectional control is refused", func(t *testing.T) {
+		r := b.post(path+"/review", url.Values{"csrf_token": {token}, "decision": {"reject"}, "reason": {"levels \u202efine\u202c"}})
+		if r.status != http.StatusUnprocessableEntity || !strings.Contains(r.body, "invisible bidirectional control U&#43;202E") {
+			t.Errorf("got %d", r.status)
+		}
+	})
 	t.Run("reject with a reason, see it in the audit trail", func(t *testing.T) {
 		r := b.post(path+"/review", url.Values{"csrf_token": {token}, "decision": {"reject"}, "reason": {"only four levels: rerun the calibration"}})
 		if r.status != http.StatusSeeOther {

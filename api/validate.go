@@ -54,6 +54,10 @@ type specValidator struct {
 	router routers.Router
 	opts   *oapimw.Options
 	query  queryParams // every route's declared query parameters
+	// firstOnly is opts without MultiError: a body over multiLimit bytes is
+	// answered with its first breach only (see bodycheck.go).
+	firstOnly  *oapimw.Options
+	multiLimit int
 }
 
 func newSpecValidator(doc *openapi3.T) (*specValidator, error) {
@@ -72,7 +76,14 @@ func newSpecValidator(doc *openapi3.T) (*specValidator, error) {
 			return &echo.HTTPError{Code: http.StatusBadRequest, Internal: me}
 		},
 	}
-	return &specValidator{router: router, opts: opts, query: newQueryParams(doc)}, nil
+	// A schema error's default message carries the offending value as
+	// indented JSON: for an array over its maxItems, the whole array, a
+	// copy of the body per error. The problem is built from each error's
+	// pointer and reason, so the message is just these.
+	opts.Options.WithCustomSchemaErrorFunc(schemaErrorMessage)
+	firstOnly := *opts
+	firstOnly.Options.MultiError = false
+	return &specValidator{router: router, opts: opts, firstOnly: &firstOnly, multiLimit: multiErrorLimit, query: newQueryParams(doc)}, nil
 }
 
 // validate returns nil when the request satisfies the spec, or the problem
@@ -88,7 +99,14 @@ func (v *specValidator) validate(c echo.Context) error {
 	if p := checkContentType(c.Request(), route.Operation); p != nil {
 		return p
 	}
-	if he := oapimw.ValidateRequestFromContext(c, v.router, v.opts); he != nil {
+	opts, p := v.checkBody(c)
+	if p != nil {
+		return p
+	}
+	if he := oapimw.ValidateRequestFromContext(c, v.router, opts); he != nil {
+		if err := c.Request().Context().Err(); err != nil {
+			return deadlineProblem()
+		}
 		return validationProblem(he)
 	}
 	return nil

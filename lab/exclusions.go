@@ -168,6 +168,12 @@ func ruleError(issues []FieldIssue) error {
 // are fitted again with the curve's method revision, and the revision is
 // stored pending review. It returns the revision's id.
 func (s *Service) Exclude(ctx context.Context, p Principal, c *Curve, points []ExcludedPoint, reason, rangeReason string) (string, error) {
+	if err := CheckFreeText("/reason", reason); err != nil {
+		return "", err
+	}
+	if err := CheckFreeText("/range_reason", rangeReason); err != nil {
+		return "", err
+	}
 	m, err := s.GetMethodRevision(ctx, c.Method, c.MethodRevision)
 	if err != nil {
 		return "", err

@@ -27,6 +27,9 @@ type RunStore interface {
 // instrument's raw data is never thrown away. in.Method names the method;
 // in.MethodRevision, TokenID and Actor are filled in here.
 func (s *Service) Ingest(ctx context.Context, p Principal, in RunInput) (*RunCreated, error) {
+	if err := p.MayUse(in.Instrument); err != nil {
+		return nil, err
+	}
 	at := InBody // a CSV run names its acquired_at as a query parameter
 	if in.SourceFormat == FormatCSV {
 		at = InQuery

@@ -32,6 +32,9 @@ type Principal struct {
 	TokenID string
 	Name    string
 	Scopes  []string
+	// Instruments binds a machine token to the instruments it may post
+	// for and reach (see access.go); nil for an unbound token.
+	Instruments []string
 }
 
 // Has reports whether the principal holds scope (admin holds all).

@@ -21,6 +21,11 @@ type QCPolicy struct {
 	// MaxCurveAgeHours, when > 0, is how long after its acquisition a curve
 	// stays in force; 0 means no limit.
 	MaxCurveAgeHours float64 `json:"max_curve_age_hours,omitempty"`
+	// AllowSelfReview lets the principal that posted a run, or made a
+	// revision, review its curve (default false: the four-eyes rule,
+	// CheckReview). A method sets it only where the lab's SOP allows one
+	// person to do both.
+	AllowSelfReview bool `json:"allow_self_review,omitempty"`
 }
 
 // DefaultQCPolicy returns the defaults: ±20 % verification tolerance (US EPA
@@ -51,7 +56,8 @@ func (q QCPolicy) Check() error {
 // Equal reports whether two policies hold the same settings.
 func (q QCPolicy) Equal(o QCPolicy) bool {
 	return q.VerificationTolerancePct == o.VerificationTolerancePct &&
-		q.PendingCurvesInForce == o.PendingCurvesInForce && q.MaxCurveAgeHours == o.MaxCurveAgeHours
+		q.PendingCurvesInForce == o.PendingCurvesInForce && q.MaxCurveAgeHours == o.MaxCurveAgeHours &&
+		q.AllowSelfReview == o.AllowSelfReview
 }
 
 // MaxAge returns the maximum age of a curve in force, 0 for none.

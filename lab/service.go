@@ -43,6 +43,7 @@ type Reader interface {
 	// round trip; the status is "" when curveID names no curve.
 	LookupTokenAndCurveStatus(ctx context.Context, secret, curveID string) (Principal, string, error)
 	LookupSession(ctx context.Context, secret string) (Session, error)
+	InstrumentOf
 	Ping(ctx context.Context) error
 	CheckSchema(ctx context.Context) error
 	RunWriteStats() RunWriteStats
@@ -56,7 +57,8 @@ type Writer interface {
 	RunStore
 	MaterialStore
 	CreateMethod(ctx context.Context, in MethodInput, actor string) (m *Method, created bool, err error)
-	CreateToken(ctx context.Context, name string, scopes []string, actor string) (id, secret string, err error)
+	// IssueToken stores a token checked by CheckTokenInput.
+	IssueToken(ctx context.Context, in TokenInput, actor string) (id, secret string, err error)
 	RevokeToken(ctx context.Context, id, actor string) error
 	ReviewCurve(ctx context.Context, id, decision, reason, actor string) (*Review, error)
 	CreateVerification(ctx context.Context, in VerificationInput) (*Verification, error)
@@ -102,10 +104,16 @@ func (s *Service) DefineMethod(ctx context.Context, p Principal, in MethodInput)
 	return s.store.CreateMethod(ctx, in, p.Actor())
 }
 
-// IssueToken issues a token with name and scopes on behalf of p and returns
-// its id and its secret, shown only here.
-func (s *Service) IssueToken(ctx context.Context, p Principal, name string, scopes []string) (id, secret string, err error) {
-	return s.store.CreateToken(ctx, name, scopes, p.Actor())
+// IssueToken issues a token on behalf of p and returns its id and its
+// secret, shown only here. The rules are CheckTokenInput's (a runs:write
+// token is bound to instruments; runs:write with curves:review needs the
+// administrator's explicit choice).
+func (s *Service) IssueToken(ctx context.Context, p Principal, in TokenInput) (id, secret string, err error) {
+	in, err = CheckTokenInput(in)
+	if err != nil {
+		return "", "", err
+	}
+	return s.store.IssueToken(ctx, in, p.Actor())
 }
 
 // RevokeToken revokes token id on behalf of p.
@@ -116,7 +124,14 @@ func (s *Service) RevokeToken(ctx context.Context, p Principal, id string) error
 // Review approves or rejects curve id, once, on behalf of p. A curve that
 // failed its checks can be approved only with a reason; its results move
 // with the review (release states).
+//
+// The store applies CheckReview with the curve locked: a superseded curve
+// is not reviewed, and the principal that posted the run or made the
+// revision does not review it unless the method allows it.
 func (s *Service) Review(ctx context.Context, p Principal, id, decision, reason string) (*Review, error) {
+	if err := CheckFreeText("/reason", reason); err != nil {
+		return nil, err
+	}
 	return s.store.ReviewCurve(ctx, id, decision, reason, p.Actor())
 }
 

@@ -260,6 +260,32 @@ func curveQuery(f lab.CurveFilter) (sql string, args []any, limit int, err error
 	return sql, args, limit, nil
 }
 
+// loadReviewFacts reads what lab.CheckReview needs of curve id, whose row
+// lock the caller holds: who posted its run, who made it by exclusion, the
+// method's self-review choice, and the revision superseding it.
+func loadReviewFacts(ctx context.Context, tx pgx.Tx, id string) (*lab.ReviewFacts, error) {
+	f := &lab.ReviewFacts{CurveID: id}
+	var revisionBy, superseded *string
+	var qc []byte
+	err := tx.QueryRow(ctx, `
+SELECT r.received_by, e.actor, m.qc,
+       (SELECT n.curve_id::text FROM exclusions n WHERE n.revision_of = c.id)
+FROM curves c
+JOIN runs r ON r.id = c.run_id
+JOIN methods m ON m.name = r.method AND m.revision = r.method_revision
+LEFT JOIN exclusions e ON e.curve_id = c.id
+WHERE c.id = $1`, id).Scan(&f.RunPostedBy, &revisionBy, &qc, &superseded)
+	if err != nil {
+		return nil, classify("select review facts of curve "+id, err)
+	}
+	var q lab.QCPolicy
+	if err := json.Unmarshal(qc, &q); err != nil {
+		return nil, fmt.Errorf("store: decode qc of curve %s's method: %w", id, err)
+	}
+	f.RevisionBy, f.SupersededBy, f.AllowSelfReview = deref(revisionBy), deref(superseded), q.AllowSelfReview
+	return f, nil
+}
+
 // ReviewCurve records the review of curve id and moves it from
 // pending_review to approved (decision "approve") or rejected ("reject"),
 // with its audit row, in one transaction. A curve whose verdict is fail can be
@@ -287,6 +313,13 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 		}
 		if current != lab.StatusPendingReview {
 			return lab.Errorf(lab.KindConflict, "curve %s was already reviewed: it is %s", id, current)
+		}
+		facts, err := loadReviewFacts(ctx, tx, id)
+		if err != nil {
+			return err
+		}
+		if err := lab.CheckReview(*facts, actor); err != nil {
+			return err
 		}
 		if decision == lab.DecisionApprove && verdict == lab.VerdictFail && reason == "" {
 			return lab.FieldError("/reason", "a curve that failed its acceptance checks can be approved only with a reason")

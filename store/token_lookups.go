@@ -121,7 +121,7 @@ func (l *tokenLookups) run(batch []*tokenLookup) {
 //   - a NULL curve id: the custom plan folds the curve subquery away. A
 //     question without a curve has its own statement without it.
 const sqlTokenLookups = `
-SELECT q.i, t.id, t.name, t.scopes, t.hash, t.revoked_at,
+SELECT q.i, t.id, t.name, t.scopes, t.instruments, t.hash, t.revoked_at,
        (SELECT c.status FROM curves c WHERE c.id = q.curve::uuid)
 FROM unnest((SELECT $1::bytea[]), (SELECT $2::text[])) WITH ORDINALITY AS q(hash, curve, i)
 JOIN tokens t ON t.hash = q.hash`
@@ -130,10 +130,10 @@ JOIN tokens t ON t.hash = q.hash`
 // curve, sqlTokenLookupOneCurve for one with a curve.
 const (
 	sqlTokenLookupOne = `
-SELECT 1::bigint, t.id, t.name, t.scopes, t.hash, t.revoked_at, NULL::text
+SELECT 1::bigint, t.id, t.name, t.scopes, t.instruments, t.hash, t.revoked_at, NULL::text
 FROM tokens t WHERE t.hash = $1`
 	sqlTokenLookupOneCurve = `
-SELECT 1::bigint, t.id, t.name, t.scopes, t.hash, t.revoked_at,
+SELECT 1::bigint, t.id, t.name, t.scopes, t.instruments, t.hash, t.revoked_at,
        (SELECT c.status FROM curves c WHERE c.id = $2::uuid)
 FROM tokens t WHERE t.hash = $1`
 )
@@ -188,7 +188,7 @@ func (l *tokenLookups) answer(batch []*tokenLookup) {
 				i int64
 				a tokenLookup
 			)
-			if err := rows.Scan(&i, &a.tok.TokenID, &a.tok.Name, &a.tok.Scopes, &a.stored, &a.revokedAt, &a.status); err != nil {
+			if err := rows.Scan(&i, &a.tok.TokenID, &a.tok.Name, &a.tok.Scopes, &a.tok.Instruments, &a.stored, &a.revokedAt, &a.status); err != nil {
 				return err
 			}
 			if i < 1 || int(i) > len(first) {
@@ -207,6 +207,9 @@ func (l *tokenLookups) answer(batch []*tokenLookup) {
 		} else if q != src {
 			q.found, q.tok, q.stored, q.revokedAt, q.status = src.found, src.tok, src.stored, src.revokedAt, src.status
 			q.tok.Scopes = append([]string(nil), src.tok.Scopes...)
+			if src.tok.Instruments != nil {
+				q.tok.Instruments = append([]string{}, src.tok.Instruments...)
+			}
 		}
 		close(q.done)
 	}

@@ -41,14 +41,22 @@ func newSecret() (string, error) {
 	return TokenPrefix + base64.RawURLEncoding.EncodeToString(b), nil
 }
 
-// CreateToken issues a token with the given name and scopes and returns its id
-// and its secret. The secret is returned only here; the database keeps its
-// SHA-256. The creation is audited under actor.
+// CreateToken issues an unbound token with the given name and scopes and
+// returns its id and its secret (the bootstrap's and the tests' way; the
+// administrators' route goes through lab.Service.IssueToken, which applies
+// lab.CheckTokenInput). The creation is audited under actor.
 func (db *DB) CreateToken(ctx context.Context, name string, scopes []string, actor string) (id, secret string, err error) {
 	scopes, err = lab.CheckToken(name, scopes)
 	if err != nil {
 		return "", "", err
 	}
+	return db.IssueToken(ctx, lab.TokenInput{Name: name, Scopes: scopes}, actor)
+}
+
+// IssueToken stores token in (checked by the caller) and returns its id and
+// its secret. The secret is returned only here; the database keeps its
+// SHA-256. The creation is audited under actor, with the binding.
+func (db *DB) IssueToken(ctx context.Context, in lab.TokenInput, actor string) (id, secret string, err error) {
 	if id, err = newID(); err != nil {
 		return "", "", err
 	}
@@ -56,18 +64,66 @@ func (db *DB) CreateToken(ctx context.Context, name string, scopes []string, act
 		return "", "", err
 	}
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
-		_, err := tx.Exec(ctx, `INSERT INTO tokens (id, name, scopes, hash, created_by) VALUES ($1, $2, $3, $4, $5)`,
-			id, name, scopes, hashSecret(secret), actor)
+		_, err := tx.Exec(ctx, `INSERT INTO tokens (id, name, scopes, hash, created_by, instruments, allow_dual_role) VALUES ($1, $2, $3, $4, $5, $6, $7)`,
+			id, in.Name, in.Scopes, hashSecret(secret), actor, in.Instruments, in.AllowDualRole)
 		if err != nil {
 			return classify("insert token", err)
 		}
-		return writeAudit(ctx, tx, actor, ActionTokenCreate, entityToken, id,
-			map[string]any{"name": name, "scopes": scopes})
+		detail := map[string]any{"name": in.Name, "scopes": in.Scopes}
+		if in.Instruments != nil {
+			detail["instruments"] = in.Instruments
+		}
+		if in.AllowDualRole {
+			detail["allow_dual_role"] = true
+		}
+		return writeAudit(ctx, tx, actor, ActionTokenCreate, entityToken, id, detail)
 	})
 	if err != nil {
 		return "", "", classify("create token", err)
 	}
 	return id, secret, nil
+}
+
+// UnboundWriteTokens counts the live tokens holding runs:write without admin
+// that are not bound to instruments (issued before binding existed): they
+// keep working, and the service warns about them at start.
+func (db *DB) UnboundWriteTokens(ctx context.Context) (int, error) {
+	var n int
+	err := db.Pool.QueryRow(ctx, `
+SELECT count(*) FROM tokens
+WHERE revoked_at IS NULL AND instruments IS NULL
+  AND 'runs:write' = ANY (scopes) AND NOT 'admin' = ANY (scopes)`).Scan(&n)
+	return n, classify("count unbound tokens", err)
+}
+
+// RunInstrument returns the instrument of run id (KindNotFound when there is
+// no such run).
+func (db *DB) RunInstrument(ctx context.Context, id string) (string, error) {
+	id, err := parseID("run", id)
+	if err != nil {
+		return "", err
+	}
+	var inst string
+	err = db.Pool.QueryRow(ctx, `SELECT instrument FROM runs WHERE id = $1`, id).Scan(&inst)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return "", lab.Errorf(lab.KindNotFound, "run %s not found", id)
+	}
+	return inst, classify("select instrument of run "+id, err)
+}
+
+// CurveInstrument returns the instrument of curve id's run (KindNotFound
+// when there is no such curve).
+func (db *DB) CurveInstrument(ctx context.Context, id string) (string, error) {
+	id, err := parseID("curve", id)
+	if err != nil {
+		return "", err
+	}
+	var inst string
+	err = db.Pool.QueryRow(ctx, `SELECT r.instrument FROM curves c JOIN runs r ON r.id = c.run_id WHERE c.id = $1`, id).Scan(&inst)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return "", lab.Errorf(lab.KindNotFound, "curve %s not found", id)
+	}
+	return inst, classify("select instrument of curve "+id, err)
 }
 
 // EnsureToken stores secret as a token with the given name and scopes unless a

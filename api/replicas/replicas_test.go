@@ -124,7 +124,7 @@ func TestTwoReplicasIngestOneStreamWithRetries(t *testing.T) {
 	}
 	post(t, a.URL, admin, "/v1/methods", "", map[string]any{"name": "replica-nitrate", "model": "linear",
 		"weighting": "1/x^2", "analytes": []map[string]string{{"name": "NO3-N", "unit": "mg/L"}}})
-	instrument := post(t, b.URL, admin, "/v1/tokens", "", map[string]any{"name": "replica-instrument", "scopes": []string{"runs:write"}}).runID
+	instrument := post(t, b.URL, admin, "/v1/tokens", "", map[string]any{"name": "replica-instrument", "scopes": []string{"runs:write"}, "instruments": []string{"replica-photometer"}}).runID
 	if t.Failed() || instrument == "" {
 		t.Fatal("set-up failed")
 	}

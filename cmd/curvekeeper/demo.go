@@ -208,7 +208,15 @@ func demoTokens(ctx context.Context, db *store.DB) (map[string]string, []string,
 	}
 	tokens := map[string]string{}
 	for _, r := range demoRoles {
-		_, secret, err := db.CreateToken(ctx, r.name, []string{r.scope}, demoTokenActor)
+		in := lab.TokenInput{Name: r.name, Scopes: []string{r.scope}}
+		if r.scope == lab.ScopeRunsWrite {
+			in.Instruments = []string{demoICPMS, demoUVVis} // instrument binding
+		}
+		in, err := lab.CheckTokenInput(in)
+		if err != nil {
+			return nil, nil, err
+		}
+		_, secret, err := db.IssueToken(ctx, in, demoTokenActor)
 		if err != nil {
 			return nil, nil, err
 		}

@@ -156,6 +156,13 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 		}
 	}
 
+	if n, err := db.UnboundWriteTokens(ctx); err != nil {
+		log.Warn("could not count the runs:write tokens without an instrument binding", "err", err)
+	} else if n > 0 {
+		log.Warn("live runs:write tokens are not bound to instruments: they may post and reach every instrument; issue bound tokens and revoke these",
+			"unbound_runs_write_tokens", n)
+	}
+
 	rateLimit := cfg.RateLimit
 	if rateLimit == 0 {
 		rateLimit = -1 // off

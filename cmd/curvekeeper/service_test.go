@@ -21,6 +21,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"runtime"
+	"slices"
 	"strconv"
 	"strings"
 	"sync"
@@ -368,7 +369,11 @@ func decodeCreated(t *testing.T, r reply) created {
 // issueToken creates a token with the given scopes and returns its secret.
 func (c *client) issueToken(base, admin, name string, scopes ...string) (id, secret string) {
 	c.t.Helper()
-	r := c.must(http.StatusCreated, "POST", base+"/v1/tokens", admin, map[string]any{"name": name, "scopes": scopes})
+	body := map[string]any{"name": name, "scopes": scopes}
+	if slices.Contains(scopes, "runs:write") && !slices.Contains(scopes, "admin") {
+		body["instruments"] = []string{"ic-02", "ic-07", "photometer-7"} // instrument binding is required
+	}
+	r := c.must(http.StatusCreated, "POST", base+"/v1/tokens", admin, body)
 	var out struct {
 		ID    string `json:"id"`
 		Token string `json:"token"`
