@@ -197,7 +197,7 @@ func (s *Server) CreateToken(ctx context.Context, req oapi.CreateTokenRequestObj
 			scopes = append(scopes, string(sc))
 		}
 	}
-	id, secret, err := s.lab.IssueToken(ctx, p, string(req.Body.Name), scopes)
+	id, secret, err := s.lab.IssueToken(ctx, p, string(req.Body.Name), scopes, deref(req.Body.Owner))
 	if err != nil {
 		return nil, err
 	}

@@ -59,6 +59,7 @@ var kindStatus = map[lab.Kind]int{
 	lab.KindNotFound:    http.StatusNotFound,
 	lab.KindConflict:    http.StatusConflict,
 	lab.KindUnavailable: http.StatusServiceUnavailable,
+	lab.KindForbidden:   http.StatusForbidden,
 }
 
 // StatusOf returns the HTTP status for err.

@@ -32,6 +32,9 @@ type Principal struct {
 	TokenID string
 	Name    string
 	Scopes  []string
+	// Owner is the person ("person:<login>") or instrument
+	// ("instrument:<name>") the token belongs to.
+	Owner string
 }
 
 // Has reports whether the principal holds scope (admin holds all).

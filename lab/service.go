@@ -13,6 +13,7 @@ package lab
 
 import (
 	"context"
+	"strings"
 	"time"
 )
 
@@ -52,7 +53,7 @@ type Reader interface {
 type Writer interface {
 	RunStore
 	CreateMethod(ctx context.Context, in MethodInput, actor string) (m *Method, created bool, err error)
-	CreateToken(ctx context.Context, name string, scopes []string, actor string) (id, secret string, err error)
+	CreateOwnedToken(ctx context.Context, name string, scopes []string, owner, actor string) (id, secret string, err error)
 	RevokeToken(ctx context.Context, id, actor string) error
 	ReviewCurve(ctx context.Context, id, decision, reason, actor string) (*Review, error)
 	CreateVerification(ctx context.Context, in VerificationInput) (*Verification, error)
@@ -67,6 +68,7 @@ type Writer interface {
 type Store interface {
 	Reader
 	Writer
+	PeopleStore
 	Topology
 }
 
@@ -74,12 +76,15 @@ type Store interface {
 // Reader's; its writes are its own methods.
 type Service struct {
 	Reader
-	store Writer
-	topo  Topology
+	store  Writer
+	people PeopleStore
+	topo   Topology
+	// People is the lab's setting for accounts and signatures.
+	People PeopleConfig
 }
 
 // NewService returns the rules over st.
-func NewService(st Store) *Service { return &Service{Reader: st, store: st, topo: st} }
+func NewService(st Store) *Service { return &Service{Reader: st, store: st, people: st, topo: st} }
 
 // Topology returns the database's replication, for the api.
 func (s *Service) Topology() Topology { return s.topo }
@@ -92,8 +97,22 @@ func (s *Service) DefineMethod(ctx context.Context, p Principal, in MethodInput)
 
 // IssueToken issues a token with name and scopes on behalf of p and returns
 // its id and its secret, shown only here.
-func (s *Service) IssueToken(ctx context.Context, p Principal, name string, scopes []string) (id, secret string, err error) {
-	return s.store.CreateToken(ctx, name, scopes, p.Actor())
+func (s *Service) IssueToken(ctx context.Context, p Principal, name string, scopes []string, owner string) (id, secret string, err error) {
+	if owner == "" {
+		owner = DefaultOwner(p, name, scopes)
+	} else if err := CheckOwner(owner); err != nil {
+		return "", "", err
+	}
+	if login, ok := strings.CutPrefix(owner, OwnerPerson); ok {
+		person, err := s.people.GetPerson(ctx, login)
+		if err != nil {
+			return "", "", err
+		}
+		if person.DisabledAt != nil {
+			return "", "", FieldError("/owner", "%s is disabled", login)
+		}
+	}
+	return s.store.CreateOwnedToken(ctx, name, scopes, owner, p.Actor())
 }
 
 // RevokeToken revokes token id on behalf of p.

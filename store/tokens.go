@@ -43,8 +43,16 @@ func newSecret() (string, error) {
 
 // CreateToken issues a token with the given name and scopes and returns its id
 // and its secret. The secret is returned only here; the database keeps its
-// SHA-256. The creation is audited under actor.
+// SHA-256. The creation is audited under actor. The token belongs to the
+// owner lab.DefaultOwner gives (the instrument of its name for runs:write
+// alone, else actor).
 func (db *DB) CreateToken(ctx context.Context, name string, scopes []string, actor string) (id, secret string, err error) {
+	return db.CreateOwnedToken(ctx, name, scopes, lab.DefaultOwner(lab.Principal{}, name, scopes), actor)
+}
+
+// CreateOwnedToken is CreateToken for a token that belongs to owner
+// ("person:<login>", "instrument:<name>").
+func (db *DB) CreateOwnedToken(ctx context.Context, name string, scopes []string, owner, actor string) (id, secret string, err error) {
 	scopes, err = lab.CheckToken(name, scopes)
 	if err != nil {
 		return "", "", err
@@ -56,13 +64,13 @@ func (db *DB) CreateToken(ctx context.Context, name string, scopes []string, act
 		return "", "", err
 	}
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
-		_, err := tx.Exec(ctx, `INSERT INTO tokens (id, name, scopes, hash, created_by) VALUES ($1, $2, $3, $4, $5)`,
-			id, name, scopes, hashSecret(secret), actor)
+		_, err := tx.Exec(ctx, `INSERT INTO tokens (id, name, scopes, hash, created_by, owner) VALUES ($1, $2, $3, $4, $5, $6)`,
+			id, name, scopes, hashSecret(secret), actor, owner)
 		if err != nil {
 			return classify("insert token", err)
 		}
 		return writeAudit(ctx, tx, actor, ActionTokenCreate, entityToken, id,
-			map[string]any{"name": name, "scopes": scopes})
+			map[string]any{"name": name, "scopes": scopes, "owner": owner})
 	})
 	if err != nil {
 		return "", "", classify("create token", err)
@@ -91,9 +99,9 @@ func (db *DB) EnsureToken(ctx context.Context, name, secret string, scopes []str
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
 		created = false
 		err := tx.QueryRow(ctx, `
-INSERT INTO tokens (id, name, scopes, hash, created_by) VALUES ($1, $2, $3, $4, 'bootstrap')
+INSERT INTO tokens (id, name, scopes, hash, created_by, owner) VALUES ($1, $2, $3, $4, 'bootstrap', $5)
 ON CONFLICT (hash) DO NOTHING
-RETURNING id`, newTokenID, name, scopes, hash).Scan(&id)
+RETURNING id`, newTokenID, name, scopes, hash, lab.DefaultOwner(lab.Principal{Name: "bootstrap"}, name, scopes)).Scan(&id)
 		if errors.Is(err, pgx.ErrNoRows) {
 			err = tx.QueryRow(ctx, `SELECT id FROM tokens WHERE hash = $1`, hash).Scan(&id)
 			return classify("select bootstrap token", err)

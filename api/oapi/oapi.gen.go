@@ -179,6 +179,30 @@ func (e Model) Valid() bool {
 	}
 }
 
+// Defines values for PersonRequestRoles.
+const (
+	Administrator PersonRequestRoles = "administrator"
+	Analyst       PersonRequestRoles = "analyst"
+	QaApprover    PersonRequestRoles = "qa-approver"
+	Reviewer      PersonRequestRoles = "reviewer"
+)
+
+// Valid indicates whether the value is a known member of the PersonRequestRoles enum.
+func (e PersonRequestRoles) Valid() bool {
+	switch e {
+	case Administrator:
+		return true
+	case Analyst:
+		return true
+	case QaApprover:
+		return true
+	case Reviewer:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for ReadinessMode.
 const (
 	ModeReadOnly  ReadinessMode = "read-only"
@@ -329,6 +353,63 @@ func (e SigmaBasis) Valid() bool {
 	case SigmaBasisLowestLevelSd:
 		return true
 	case SigmaBasisResidualSd:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for SignatureMeaning.
+const (
+	SignatureMeaningApproval       SignatureMeaning = "approval"
+	SignatureMeaningResponsibility SignatureMeaning = "responsibility"
+	SignatureMeaningReview         SignatureMeaning = "review"
+)
+
+// Valid indicates whether the value is a known member of the SignatureMeaning enum.
+func (e SignatureMeaning) Valid() bool {
+	switch e {
+	case SignatureMeaningApproval:
+		return true
+	case SignatureMeaningResponsibility:
+		return true
+	case SignatureMeaningReview:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for SignatureRequestDecision.
+const (
+	Approve SignatureRequestDecision = "approve"
+	Reject  SignatureRequestDecision = "reject"
+)
+
+// Valid indicates whether the value is a known member of the SignatureRequestDecision enum.
+func (e SignatureRequestDecision) Valid() bool {
+	switch e {
+	case Approve:
+		return true
+	case Reject:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for SignatureRequestMeaning.
+const (
+	SignatureRequestMeaningApproval SignatureRequestMeaning = "approval"
+	SignatureRequestMeaningReview   SignatureRequestMeaning = "review"
+)
+
+// Valid indicates whether the value is a known member of the SignatureRequestMeaning enum.
+func (e SignatureRequestMeaning) Valid() bool {
+	switch e {
+	case SignatureRequestMeaningApproval:
+		return true
+	case SignatureRequestMeaningReview:
 		return true
 	default:
 		return false
@@ -946,6 +1027,9 @@ type Limits struct {
 	SigmaBasis *SigmaBasis `json:"sigma_basis,omitempty"`
 }
 
+// Login A person's login.
+type Login = string
+
 // Method defines model for Method.
 type Method struct {
 	// Acceptance Every threshold in force, defaults filled in.
@@ -1042,6 +1126,36 @@ type Model string
 
 // Operator Who ran the instrument; an identifier that may also hold `@`.
 type Operator = string
+
+// Person defines model for Person.
+type Person struct {
+	CreatedAt      time.Time  `json:"created_at"`
+	Disabled       bool       `json:"disabled"`
+	DisabledAt     *time.Time `json:"disabled_at,omitempty"`
+	FailedAttempts int        `json:"failed_attempts"`
+	FullName       string     `json:"full_name"`
+	Locked         bool       `json:"locked"`
+	Login          string     `json:"login"`
+	Roles          []string   `json:"roles"`
+}
+
+// PersonList defines model for PersonList.
+type PersonList struct {
+	People []Person `json:"people"`
+}
+
+// PersonRequest defines model for PersonRequest.
+type PersonRequest struct {
+	FullName string `json:"full_name"`
+
+	// Login A person's login.
+	Login    Login                `json:"login"`
+	Password string               `json:"password"`
+	Roles    []PersonRequestRoles `json:"roles"`
+}
+
+// PersonRequestRoles defines model for PersonRequest.Roles.
+type PersonRequestRoles string
 
 // PredictionRequest defines model for PredictionRequest.
 type PredictionRequest struct {
@@ -1478,6 +1592,61 @@ type Scope string
 // `lowest_level_sd`.
 type SigmaBasis string
 
+// Signature defines model for Signature.
+type Signature struct {
+	// ContentMatches Whether the record's current content still has that hash.
+	ContentMatches bool `json:"content_matches"`
+
+	// ContentSha256 SHA-256 (hex) of the canonical JSON of the record as signed.
+	ContentSha256 string  `json:"content_sha256"`
+	Decision      *string `json:"decision,omitempty"`
+	ID            UUID    `json:"id"`
+	Login         string  `json:"login"`
+
+	// Manifestation Printed name, meaning, UTC and local time, as every human-readable view shows it.
+	Manifestation string           `json:"manifestation"`
+	Meaning       SignatureMeaning `json:"meaning"`
+	PrintedName   string           `json:"printed_name"`
+	Reason        *string          `json:"reason,omitempty"`
+	RecordID      string           `json:"record_id"`
+	RecordType    string           `json:"record_type"`
+
+	// SignedAt UTC.
+	SignedAt time.Time `json:"signed_at"`
+
+	// SignedAtLocal The same instant in the lab's time zone.
+	SignedAtLocal    time.Time  `json:"signed_at_local"`
+	TimeZone         string     `json:"time_zone"`
+	WithdrawalReason *string    `json:"withdrawal_reason,omitempty"`
+	WithdrawnAt      *time.Time `json:"withdrawn_at,omitempty"`
+	WithdrawnBy      *string    `json:"withdrawn_by,omitempty"`
+}
+
+// SignatureMeaning defines model for Signature.Meaning.
+type SignatureMeaning string
+
+// SignatureList defines model for SignatureList.
+type SignatureList struct {
+	Signatures []Signature `json:"signatures"`
+}
+
+// SignatureRequest defines model for SignatureRequest.
+type SignatureRequest struct {
+	Decision *SignatureRequestDecision `json:"decision,omitempty"`
+
+	// Login A person's login.
+	Login    Login                   `json:"login"`
+	Meaning  SignatureRequestMeaning `json:"meaning"`
+	Password string                  `json:"password"`
+	Reason   *string                 `json:"reason,omitempty"`
+}
+
+// SignatureRequestDecision defines model for SignatureRequest.Decision.
+type SignatureRequestDecision string
+
+// SignatureRequestMeaning defines model for SignatureRequest.Meaning.
+type SignatureRequestMeaning string
+
 // Standard defines model for Standard.
 type Standard struct {
 	Analyte       string    `json:"analyte"`
@@ -1518,8 +1687,13 @@ type TokenCreated struct {
 // TokenRequest defines model for TokenRequest.
 type TokenRequest struct {
 	// Name Who or what will use the token; shown as the actor in the audit trail.
-	Name   Identifier `json:"name"`
-	Scopes []Scope    `json:"scopes"`
+	Name Identifier `json:"name"`
+
+	// Owner Whom the token belongs to: `person:<login>` or `instrument:<name>`.
+	// Default: the instrument of the token's name for a `runs:write`
+	// token alone, else the person whose token issues it.
+	Owner  *string `json:"owner,omitempty"`
+	Scopes []Scope `json:"scopes"`
 }
 
 // Trend defines model for Trend.
@@ -1758,6 +1932,14 @@ type WeightingOptionsInput struct {
 	MinReplicates *int `json:"min_replicates,omitempty"`
 }
 
+// WithdrawalRequest defines model for WithdrawalRequest.
+type WithdrawalRequest struct {
+	// Login A person's login.
+	Login    Login  `json:"login"`
+	Password string `json:"password"`
+	Reason   string `json:"reason"`
+}
+
 // CurveID defines model for CurveID.
 type CurveID = UUID
 
@@ -1907,6 +2089,9 @@ type CreatePredictionsJSONRequestBody = PredictionRequest
 // ReviewCurveJSONRequestBody defines body for ReviewCurve for application/json ContentType.
 type ReviewCurveJSONRequestBody = ReviewRequest
 
+// SignCurveJSONRequestBody defines body for SignCurve for application/json ContentType.
+type SignCurveJSONRequestBody = SignatureRequest
+
 // CreateVerificationJSONRequestBody defines body for CreateVerification for application/json ContentType.
 type CreateVerificationJSONRequestBody = VerificationRequest
 
@@ -1916,11 +2101,17 @@ type CreateInstrumentPredictionsJSONRequestBody = InstrumentPredictionRequest
 // CreateMethodJSONRequestBody defines body for CreateMethod for application/json ContentType.
 type CreateMethodJSONRequestBody = MethodRequest
 
+// CreatePersonJSONRequestBody defines body for CreatePerson for application/json ContentType.
+type CreatePersonJSONRequestBody = PersonRequest
+
 // CreateRunJSONRequestBody defines body for CreateRun for application/json ContentType.
 type CreateRunJSONRequestBody = RunRequest
 
 // CreateRunSamplesJSONRequestBody defines body for CreateRunSamples for application/json ContentType.
 type CreateRunSamplesJSONRequestBody = SamplesRequest
+
+// WithdrawSignatureJSONRequestBody defines body for WithdrawSignature for application/json ContentType.
+type WithdrawSignatureJSONRequestBody = WithdrawalRequest
 
 // CreateTokenJSONRequestBody defines body for CreateToken for application/json ContentType.
 type CreateTokenJSONRequestBody = TokenRequest
@@ -1963,6 +2154,12 @@ type ServerInterface interface {
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
 	ReviewCurve(ctx echo.Context, id CurveID) error
+	// ListCurveSignatures Signatures of a curve
+	// (GET /v1/curves/{id}/signatures)
+	ListCurveSignatures(ctx echo.Context, id CurveID) error
+	// SignCurve Sign a curve
+	// (POST /v1/curves/{id}/signatures)
+	SignCurve(ctx echo.Context, id CurveID) error
 	// ListVerifications Verification standards of a curve
 	// (GET /v1/curves/{id}/verifications)
 	ListVerifications(ctx echo.Context, id CurveID) error
@@ -1984,6 +2181,18 @@ type ServerInterface interface {
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx echo.Context, name Identifier, params GetMethodParams) error
+	// ListPeople List people
+	// (GET /v1/people)
+	ListPeople(ctx echo.Context) error
+	// CreatePerson Open an account
+	// (POST /v1/people)
+	CreatePerson(ctx echo.Context) error
+	// DisablePerson Disable a person
+	// (POST /v1/people/{login}/disable)
+	DisablePerson(ctx echo.Context, login Login) error
+	// UnlockPerson Unlock a person
+	// (POST /v1/people/{login}/unlock)
+	UnlockPerson(ctx echo.Context, login Login) error
 	// ListResultEvents Change feed of sample results
 	// (GET /v1/results)
 	ListResultEvents(ctx echo.Context, params ListResultEventsParams) error
@@ -2002,6 +2211,9 @@ type ServerInterface interface {
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx echo.Context, sampleID Identifier) error
+	// WithdrawSignature Withdraw a signature
+	// (POST /v1/signatures/{id}/withdrawal)
+	WithdrawSignature(ctx echo.Context, id UUID) error
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx echo.Context) error
@@ -2243,6 +2455,38 @@ func (w *ServerInterfaceWrapper) ReviewCurve(ctx echo.Context) error {
 	return err
 }
 
+// ListCurveSignatures converts echo context to params.
+func (w *ServerInterfaceWrapper) ListCurveSignatures(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListCurveSignatures(ctx, id)
+	return err
+}
+
+// SignCurve converts echo context to params.
+func (w *ServerInterfaceWrapper) SignCurve(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.SignCurve(ctx, id)
+	return err
+}
+
 // ListVerifications converts echo context to params.
 func (w *ServerInterfaceWrapper) ListVerifications(ctx echo.Context) error {
 	var err error
@@ -2363,6 +2607,56 @@ func (w *ServerInterfaceWrapper) GetMethod(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.GetMethod(ctx, name, params)
+	return err
+}
+
+// ListPeople converts echo context to params.
+func (w *ServerInterfaceWrapper) ListPeople(ctx echo.Context) error {
+	var err error
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListPeople(ctx)
+	return err
+}
+
+// CreatePerson converts echo context to params.
+func (w *ServerInterfaceWrapper) CreatePerson(ctx echo.Context) error {
+	var err error
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreatePerson(ctx)
+	return err
+}
+
+// DisablePerson converts echo context to params.
+func (w *ServerInterfaceWrapper) DisablePerson(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "login" -------------
+	var login Login
+
+	err = runtime.BindStyledParameterWithOptions("simple", "login", ctx.Param("login"), &login, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter login: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.DisablePerson(ctx, login)
+	return err
+}
+
+// UnlockPerson converts echo context to params.
+func (w *ServerInterfaceWrapper) UnlockPerson(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "login" -------------
+	var login Login
+
+	err = runtime.BindStyledParameterWithOptions("simple", "login", ctx.Param("login"), &login, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter login: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.UnlockPerson(ctx, login)
 	return err
 }
 
@@ -2508,6 +2802,22 @@ func (w *ServerInterfaceWrapper) GetSampleResults(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.GetSampleResults(ctx, sampleID)
+	return err
+}
+
+// WithdrawSignature converts echo context to params.
+func (w *ServerInterfaceWrapper) WithdrawSignature(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id UUID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.WithdrawSignature(ctx, id)
 	return err
 }
 
@@ -2718,6 +3028,13 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/methods/:name", wrapper.GetMethod, options.OperationMiddlewares["getMethod"]...)
 	router.POST(options.BaseURL+"/v1/tokens", wrapper.CreateToken, options.OperationMiddlewares["createToken"]...)
 	router.DELETE(options.BaseURL+"/v1/tokens/:id", wrapper.DeleteToken, options.OperationMiddlewares["deleteToken"]...)
+	router.GET(options.BaseURL+"/v1/people", wrapper.ListPeople, options.OperationMiddlewares["listPeople"]...)
+	router.POST(options.BaseURL+"/v1/people", wrapper.CreatePerson, options.OperationMiddlewares["createPerson"]...)
+	router.POST(options.BaseURL+"/v1/people/:login/disable", wrapper.DisablePerson, options.OperationMiddlewares["disablePerson"]...)
+	router.POST(options.BaseURL+"/v1/people/:login/unlock", wrapper.UnlockPerson, options.OperationMiddlewares["unlockPerson"]...)
+	router.GET(options.BaseURL+"/v1/curves/:id/signatures", wrapper.ListCurveSignatures, options.OperationMiddlewares["listCurveSignatures"]...)
+	router.POST(options.BaseURL+"/v1/curves/:id/signatures", wrapper.SignCurve, options.OperationMiddlewares["signCurve"]...)
+	router.POST(options.BaseURL+"/v1/signatures/:id/withdrawal", wrapper.WithdrawSignature, options.OperationMiddlewares["withdrawSignature"]...)
 
 }
 
@@ -4227,6 +4544,345 @@ func (response ReviewCurve503ApplicationProblemPlusJSONResponse) VisitReviewCurv
 	return err
 }
 
+type ListCurveSignaturesRequestObject struct {
+	ID CurveID `json:"id"`
+}
+
+type ListCurveSignaturesResponseObject interface {
+	VisitListCurveSignaturesResponse(w http.ResponseWriter) error
+}
+
+type ListCurveSignatures200JSONResponse SignatureList
+
+func (response ListCurveSignatures200JSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures400ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures401ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures403ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures404ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures429ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures500ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures503ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurveRequestObject struct {
+	ID   CurveID `json:"id"`
+	Body *SignCurveJSONRequestBody
+}
+
+type SignCurveResponseObject interface {
+	VisitSignCurveResponse(w http.ResponseWriter) error
+}
+
+type SignCurve201JSONResponse Signature
+
+func (response SignCurve201JSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve400ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve401ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve403ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve404ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve409ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve413ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve415ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve422ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve429ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve500ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve503ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type ListVerificationsRequestObject struct {
 	ID CurveID `json:"id"`
 }
@@ -5371,6 +6027,569 @@ func (response GetMethod503ApplicationProblemPlusJSONResponse) VisitGetMethodRes
 	return err
 }
 
+type ListPeopleRequestObject struct {
+}
+
+type ListPeopleResponseObject interface {
+	VisitListPeopleResponse(w http.ResponseWriter) error
+}
+
+type ListPeople200JSONResponse PersonList
+
+func (response ListPeople200JSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListPeople401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListPeople401ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListPeople403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListPeople403ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListPeople429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListPeople429ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListPeople500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListPeople500ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListPeople503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListPeople503ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePersonRequestObject struct {
+	Body *CreatePersonJSONRequestBody
+}
+
+type CreatePersonResponseObject interface {
+	VisitCreatePersonResponse(w http.ResponseWriter) error
+}
+
+type CreatePerson201JSONResponse Person
+
+func (response CreatePerson201JSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson400ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson401ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson403ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson409ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson413ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson415ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson422ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson429ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson500ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson503ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePersonRequestObject struct {
+	Login Login `json:"login"`
+}
+
+type DisablePersonResponseObject interface {
+	VisitDisablePersonResponse(w http.ResponseWriter) error
+}
+
+type DisablePerson200JSONResponse Person
+
+func (response DisablePerson200JSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson400ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson401ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson403ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson404ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson429ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson500ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson503ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPersonRequestObject struct {
+	Login Login `json:"login"`
+}
+
+type UnlockPersonResponseObject interface {
+	VisitUnlockPersonResponse(w http.ResponseWriter) error
+}
+
+type UnlockPerson200JSONResponse Person
+
+func (response UnlockPerson200JSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson400ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson401ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson403ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson404ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson429ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson500ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson503ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type ListResultEventsRequestObject struct {
 	Params ListResultEventsParams
 }
@@ -6302,6 +7521,208 @@ func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSa
 	return err
 }
 
+type WithdrawSignatureRequestObject struct {
+	ID   UUID `json:"id"`
+	Body *WithdrawSignatureJSONRequestBody
+}
+
+type WithdrawSignatureResponseObject interface {
+	VisitWithdrawSignatureResponse(w http.ResponseWriter) error
+}
+
+type WithdrawSignature200JSONResponse Signature
+
+func (response WithdrawSignature200JSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature400ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature401ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature403ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature404ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature409ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature413ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature415ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature422ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature429ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature500ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature503ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type CreateTokenRequestObject struct {
 	Body *CreateTokenJSONRequestBody
 }
@@ -6888,6 +8309,12 @@ type StrictServerInterface interface {
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
 	ReviewCurve(ctx context.Context, request ReviewCurveRequestObject) (ReviewCurveResponseObject, error)
+	// ListCurveSignatures Signatures of a curve
+	// (GET /v1/curves/{id}/signatures)
+	ListCurveSignatures(ctx context.Context, request ListCurveSignaturesRequestObject) (ListCurveSignaturesResponseObject, error)
+	// SignCurve Sign a curve
+	// (POST /v1/curves/{id}/signatures)
+	SignCurve(ctx context.Context, request SignCurveRequestObject) (SignCurveResponseObject, error)
 	// ListVerifications Verification standards of a curve
 	// (GET /v1/curves/{id}/verifications)
 	ListVerifications(ctx context.Context, request ListVerificationsRequestObject) (ListVerificationsResponseObject, error)
@@ -6909,6 +8336,18 @@ type StrictServerInterface interface {
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx context.Context, request GetMethodRequestObject) (GetMethodResponseObject, error)
+	// ListPeople List people
+	// (GET /v1/people)
+	ListPeople(ctx context.Context, request ListPeopleRequestObject) (ListPeopleResponseObject, error)
+	// CreatePerson Open an account
+	// (POST /v1/people)
+	CreatePerson(ctx context.Context, request CreatePersonRequestObject) (CreatePersonResponseObject, error)
+	// DisablePerson Disable a person
+	// (POST /v1/people/{login}/disable)
+	DisablePerson(ctx context.Context, request DisablePersonRequestObject) (DisablePersonResponseObject, error)
+	// UnlockPerson Unlock a person
+	// (POST /v1/people/{login}/unlock)
+	UnlockPerson(ctx context.Context, request UnlockPersonRequestObject) (UnlockPersonResponseObject, error)
 	// ListResultEvents Change feed of sample results
 	// (GET /v1/results)
 	ListResultEvents(ctx context.Context, request ListResultEventsRequestObject) (ListResultEventsResponseObject, error)
@@ -6927,6 +8366,9 @@ type StrictServerInterface interface {
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx context.Context, request GetSampleResultsRequestObject) (GetSampleResultsResponseObject, error)
+	// WithdrawSignature Withdraw a signature
+	// (POST /v1/signatures/{id}/withdrawal)
+	WithdrawSignature(ctx context.Context, request WithdrawSignatureRequestObject) (WithdrawSignatureResponseObject, error)
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
 	CreateToken(ctx context.Context, request CreateTokenRequestObject) (CreateTokenResponseObject, error)
@@ -7314,6 +8756,79 @@ func (sh *strictHandler) ReviewCurve(ctx echo.Context, id CurveID) error {
 	return nil
 }
 
+// ListCurveSignatures operation middleware
+func (sh *strictHandler) ListCurveSignatures(ctx echo.Context, id CurveID) error {
+	var request ListCurveSignaturesRequestObject
+
+	request.ID = id
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListCurveSignatures(ctx.Request().Context(), request.(ListCurveSignaturesRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListCurveSignatures")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListCurveSignaturesResponseObject); ok {
+		return validResponse.VisitListCurveSignaturesResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// SignCurve operation middleware
+func (sh *strictHandler) SignCurve(ctx echo.Context, id CurveID) error {
+	var request SignCurveRequestObject
+
+	request.ID = id
+
+	var body SignCurveJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.SignCurve(ctx.Request().Context(), request.(SignCurveRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "SignCurve")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(SignCurveResponseObject); ok {
+		return validResponse.VisitSignCurveResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // ListVerifications operation middleware
 func (sh *strictHandler) ListVerifications(ctx echo.Context, id CurveID) error {
 	var request ListVerificationsRequestObject
@@ -7556,6 +9071,125 @@ func (sh *strictHandler) GetMethod(ctx echo.Context, name Identifier, params Get
 	return nil
 }
 
+// ListPeople operation middleware
+func (sh *strictHandler) ListPeople(ctx echo.Context) error {
+	var request ListPeopleRequestObject
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListPeople(ctx.Request().Context(), request.(ListPeopleRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListPeople")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListPeopleResponseObject); ok {
+		return validResponse.VisitListPeopleResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreatePerson operation middleware
+func (sh *strictHandler) CreatePerson(ctx echo.Context) error {
+	var request CreatePersonRequestObject
+
+	var body CreatePersonJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreatePerson(ctx.Request().Context(), request.(CreatePersonRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreatePerson")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreatePersonResponseObject); ok {
+		return validResponse.VisitCreatePersonResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// DisablePerson operation middleware
+func (sh *strictHandler) DisablePerson(ctx echo.Context, login Login) error {
+	var request DisablePersonRequestObject
+
+	request.Login = login
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.DisablePerson(ctx.Request().Context(), request.(DisablePersonRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "DisablePerson")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(DisablePersonResponseObject); ok {
+		return validResponse.VisitDisablePersonResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// UnlockPerson operation middleware
+func (sh *strictHandler) UnlockPerson(ctx echo.Context, login Login) error {
+	var request UnlockPersonRequestObject
+
+	request.Login = login
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.UnlockPerson(ctx.Request().Context(), request.(UnlockPersonRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "UnlockPerson")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(UnlockPersonResponseObject); ok {
+		return validResponse.VisitUnlockPersonResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // ListResultEvents operation middleware
 func (sh *strictHandler) ListResultEvents(ctx echo.Context, params ListResultEventsParams) error {
 	var request ListResultEventsRequestObject
@@ -7757,6 +9391,54 @@ func (sh *strictHandler) GetSampleResults(ctx echo.Context, sampleID Identifier)
 	return nil
 }
 
+// WithdrawSignature operation middleware
+func (sh *strictHandler) WithdrawSignature(ctx echo.Context, id UUID) error {
+	var request WithdrawSignatureRequestObject
+
+	request.ID = id
+
+	var body WithdrawSignatureJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.WithdrawSignature(ctx.Request().Context(), request.(WithdrawSignatureRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "WithdrawSignature")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(WithdrawSignatureResponseObject); ok {
+		return validResponse.VisitWithdrawSignatureResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // CreateToken operation middleware
 func (sh *strictHandler) CreateToken(ctx echo.Context) error {
 	var request CreateTokenRequestObject
@@ -7883,370 +9565,397 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L1fcxtJli/2VdKcOyGgpwiBENXdAmMirpqSdrgjtTSkunuvBz2oRFUCyGUhE6rMIojpluM69uXuq18c",
-	"4dd77ffdCMeEw2/t97ufwfNJHHlOZlZWoQAWKFLds9ZETIsAqvJ/nr+/c84PB4lcLKVgQquD4Q8Hc0ZT",
-	"lsOf50zn66dTzXLzKWUqyflScykOhgcXLJEiVURLsqJckwmbypyR3LzCxax3EB3k7F3Bc5YeDHVesOhA",
-	"JXO2oKapBRd8USwOhv3oQK+X7GB4wIVmM5YfvH//PjpY0pwumLbDOC3yK3b2bHMMb+eMJObHB4rw1HTJ",
-	"zddLqucH0YGgC2g43TmU/5Cz6cHw4FcPy1V4iL+qh998c/bswIznLGWLpdRMJOvfs/XmQJ6SJONM6MNk",
-	"LhUT5JKtSYcS8z7hilAykzIlyVzyhHWJnlNNFvSSmV/MgnGWjoQZIlOaKDplJ0QxRvScEblkOTW9PFAk",
-	"6LM3Em62uF/lfIOxHprBVtadXr9kYqbnB8OjwZeR2Qf/2ay61iw3bf7pj08P/0d6+Of+4ZPeeHj4/Q9H",
-	"0dHgy/f/4cBvl9I5FzNcHKF0XiyY0M07xP3vhKdMaD7lLI8IVWQplWYpWXE9J1wrkhdCbdvFspPb7uaZ",
-	"7xyGfV6IbWcqL8T9nqj35n21lEIxOOFf0fQct998SqTQdjXpcpnxBA7Aw2UuJxlb/OYflRnoDy17fINv",
-	"YafVqb6i2VTmC5YStRaaXkdklUsxI2aLicwJJVc0KxiRhVY8xfOIzQ7Jwr07En9/8frriFCCR4Ks5ixn",
-	"hBJRLCYsJxOWSTFTEaGCFOJSyJUgU86y1LxiTxyR+UjkVMwYueIyo5rBr+8Klq+JpwV4b1LJFBFSE7M0",
-	"a3MP3kcHp1JMM5581NWDg8KULPLE0B+lqWZkKvMJN1QRfsQL3aFIpEjOrjhbsZTQLGc0XUeEjgT+ZK6A",
-	"LDShZMp1BGQBX4a7AQtPF8zcH3e3gcYozbOMcDEy05/NddeuxwsYRsrEx14QLS+ZIBlNLhVhV2b7VCKX",
-	"jGQcbjoXJL4+dFfnEH5Tce8AqIg5CTR7nucy/5jDdh0TZnruETONiUzXRNG1IlJkazIC7lQ+NDogVKSV",
-	"TTbE4n108LXUL2Qh0o+97oYypf44lpeEXXOlYWRv6DqTNH0r5Uuaz9jHHiCsKLtOGLO3Q7H8iuUPFEmk",
-	"mPJZkbOUZHzBcbQXLL/iCftG0CvKMzrJPvqAU6rphCpGEirMSk7MXtNkzlIi5Cryc+AJMyxezQutDflL",
-	"5UpEQNA6U6Chq5xrYPpcASukIrGzV6bF1J6xCUtooRjwQd83VyNhCCsV6WSNPL8unh16+axpsvbph4Ek",
-	"B/N9K+UrKtaW6aifhUw8UP725IZ2ckXkFcthBexJuKvpfiNooecy539mH/VqvuJKcTGLSnYZeSYoc8MQ",
-	"5CVLyYTR3PA3syq1SX/33XeHTws9N6JLQjXbFFjir+DtGFkFFSQGGhUTqnXOJ4VmpHP+4pR8/sXjfne3",
-	"WF6X7XDplrlMmFLmEj4Xmuv1x1zB71iWHVophYtloVEKmOSMXoL4XGSMyGl4HU/sCqgYyKIi5tqOhJxO",
-	"mUjNFQXxo6TgRcYs2/xGqGK5lLlm6SuWcvoW1uNjixRwJR4ocoq9HppRmMthqJAUNbWA0CRhS616INPa",
-	"PswQnsL3hticmWWDsacpN+/Q7E1uGtDcSJ9TmilWH0n5NtHznKm5zFJ1AisJY8jYVBu5kGhQY8yQmJhx",
-	"wUBNmdIi06Sj5ijsZRmyfingwQXTc5nCUVwG4/jhYEKTy3FCs2ScydVYy4zlZgTjJQp27DrJCsWv2Cun",
-	"PeL5NaeD6oPhQSoLwygio+bgA0f9ftSkbKJsara87HPBxXhJlRpPc5rgMvyws+3WLX+cmczlQqqEpVRp",
-	"nnC9HtNsOb/xND6Fh95HKOGYTd/zPSPrjeV0POX7vrmgIqVa5g369OmcGQlyZbRpMqU8K3L8F4/aFctT",
-	"nugTvAp6znJFqFE60iuuZL4GvU2zhbppLNDP10arg/Fcn+FLR+X60jynRocuBH9XMPu72S07AZbtPevr",
-	"ca7u9yiYo5yxK5Ypq/Tjo4/D9wablhd8MR+rdwXNkVF+wPmXhc44y8eJlJdqnN7bZF0/Sheg4FsWfy99",
-	"5YVQe+73Fcv51HKMTUpQPfY//vrZj0brDl5B4Y/mKemcnX778PT02y5Z0DUxtJXQGTUSpZGYRkLIBTca",
-	"CujsPfLMUuFBPyLUSELkmwvy/M1TcvHd4ZfHn5NXQIXJl/1+/9lIJDTjE8tRwu7ximV0InO4qg+UJd9E",
-	"Ma1AVJMra426hxV/77+Rk39kiTYLWrKmNzLjyXpPzvYctFLP1Axfmso8YZHjW6rkWHuzqM2pfjjD2Yex",
-	"tHh7O5to8XIDk2jxViOLaPFehUHsT88rFLyBXLcaQYVYt3mjQnpvRWHbUNI93qrRxRZvVqlcixf2oXFG",
-	"xkU6l2VyxVJz+5opniKdNCBi28kXiJI3DvN9qPn8Mdyo2tFoOrBb78326xjtJBa7CUH9nFRP4uY9rOxZ",
-	"89ZvHqPwgu3cw++bqLA7HnVHiOIzAQ0Z3QEWuHl3PA/o9x6HPKDX7/ePGs7YU0GzNeq/O6l9lV6jxb69",
-	"XwAEPX2jFd88Uz9Q0JV9v3HFipTr51dOj2w/h5I51FRjowivqCKpFCwirDfrkTgvRC/JGdUsjSMSg3W5",
-	"N+W68pkul7m8Cr/JmRkmS+PeposnMiOQDS5AQ2id7o2GX9DNqWmouZ0aFaWaHWq+YE3PpkxTnjXTjyXN",
-	"NU+KjOYqIlwkWQF6PXUW9hxMS1RJ0Wv0WIXbRs19wglGB/762d637uNLOdtzF9mVc7C24mTBadlgZbUZ",
-	"2JabxnpKCzM8teXwoAFbGQrLFRhE0MwwtFYFuMNOyAzstJYsj0SSc81yTsk0lwuyLCYZV3OWklnBU/Ny",
-	"g/hIkyRnKddAaKKRyNmsyMyP0L8VLi9evwHLAlnmLGEpg6Zwc8lkDa4hmpkrm5Ily5UUI+H9zxmjiln/",
-	"qFvpjdO14MLpepuCAkgRe26v2cJCI4utrvQL8zhZzRlaPxLTOElkkaXE2pXdu7BagsSGF7A0NpsBfcHK",
-	"xHgkY3RLrObr4GhPpMwYFdVrszFnsKk2X6hAHIajYEZkGA/YFE+IKLKsPoM5NUdFgKNwRdE65SbSTPFN",
-	"K2jJR71gt7xXP67MqPmB/cg60MGsjiNKWeK8lN5AAMaBFQe7OpzxwEKwuXhtuEVFxMSdClY7aAxdMY1T",
-	"yZm3POKt06XVLJELBtepkYIqc2+MBLJlHwFA4J4xW7NgVMGdBbUw3MoP3rBm/leO0J04v0xReUuqsodd",
-	"qp1kt1z3JvQFHADLigLatQQNcUjiUtozPA/FvTgaiTgQ9cwvdSnPfOcFNUOnuBTmOy+aQSM5M79csbET",
-	"Xcdogo9I7CU1eIspnhY0GxtpzXxhRTIFrSykkFoKnphf0pxPddwjwbek49fMEEF7YLrEbgKYxpw/WUtD",
-	"WMy5SXS2Jr4R9LCYVVrJ/NIwTXC791yH4HFyu0SoJlzMmNJDeEWwlYfbqEwuS96A15IKOM0Xz7xBHnzW",
-	"JfzD/EpRjnugyKBPFlJpYki80CPhpBLsQ0Wl7/s7pvSM5ilBMQUujiIdxdhIxH/3/C15eHX0UOdMpCru",
-	"9shZ5aqTQmRMqZB0ZFyB8YJQNRJ+USN7F83L3r4NV2VqZAoj3Ahy1Ce1cY4EOFkj1w82UG5VB4g6fpsz",
-	"9C6QGsHsWguKMCJwo25S1Uoa9JFQo7AH1agFgQqx5ZSG6gQ8FZzRUmuAkbhTZG6qOS7BRbUkKjq4PjSz",
-	"OLyiOThfzHTg6r7i4qWbEn7h5gWfXtLk8vX0BUwNvvjd5vzg+69ocnlamSN8fX7h54mf7WQv7Fyf26nC",
-	"j2fBfO3TOOlznDN897qcOI43mD188QyXAOEn5gij/ayJPjnbXBI+aERXJFj+Shjl4QZ16agf/O8Gc+Wp",
-	"EdlAempgFyt5qHhqjrF/CvU1c3vhRFzRTEWk33tsyEm/9+TJkxtVuSdPnlSUucfNo9K5zF4a5qD2tN5d",
-	"zNlqTnOQRk0j6ChWpHN28Zp88eUX/cNB1zE5D6mZUMUyLlivgac1qVrjOZ/NW5o+7BuZXLV8AfaftXx4",
-	"RXPBxWyfAblX2o6oxsXt8Krt1AZSmXVUWbRGzo1bdV5kjby7JO5GHOr4j0wTmvUicppx0SOnc7bokcEX",
-	"pHP05MujLjl+8qg7JPHR4UDFI5BDEas2YWspUvLTvwwMH+rYcXdPzKOPVAzOS//MI3Lx7ITEA9MI0Stp",
-	"WJ9QLCkM5XCPeUYGLcJ5OyHx+eExvkOCVyLT/EjQibxi5DfwvPMygyAKYLgV+et/+V8G2PPx4ZGKyVQW",
-	"OdnseSR810dh10f965hoJiqvWN8qPA1gPcuCDVeuMhezZAfRgVmOg+hggJ/MdA6iAzMe81v/uiVpN5t6",
-	"hC2Yvx65vwb+u/Nj99fxkX/OtG9ORpGrJsPC6yV9VzByydaKacNmlcxJx1zjz4+LvLzaS0M5xAzsfwG0",
-	"9fHRoBW0dXz4/W/+Q5OUDYDjfT3mBK0sKBX0yHdOXcoZNYNUVZ3PPkzNIc+M9JdINp3yhBtlwwiAVSat",
-	"YlQCE3lFc25k2xg8nmyx1OsIJT+80QqNMIKZ1k038JwhexGJrV4EqmU8NepkZNsFhysolyNhlEs4MnXi",
-	"iGRiTHWjVmOnWwjQB93TVZaxy+JDSwvfxm9JYMjYqZ2558w7MKf9fAdNfoNwZzYnfibIQqYsO2TvCrRf",
-	"yzxl+ZAYjkNz8sdJPyKTo+8j+8VY5nzGBfkjfPeuoKmRBhL3XEQmg+8r/ut2bgprzXjUNPztQsBpA+s3",
-	"mzhBST01n51i6kWCVtZ20687qk39ut/IguqcX7uOw7WOiPrpXzv/8P/+n//5u3/o/vV//r9/+r8iksuV",
-	"MmJT8Byud2XJ7mztdi8smll3XwcL76XK33iREqXlXjcjnW724ERWkrJZzpgyKzjNGUvlIiLC8BiyDEwI",
-	"gQsKgTrjK5arRnEVoioCfzA+j2TFq4ZmbgBVRrMzPP/wqNfv9ZtNyNY5jP3tuobP/YPvo4NpRmeqyaSW",
-	"aEXoBABIOBALDkcTkJDOAtQaCfKC6xcZnTXd/zmjV5wpjSrZTQ2BknMxpzkYiHjaLiIgCgMcGo133qdY",
-	"XYpnXGkuEo33VzmVYop6xK44G2ueuXFlrJxubgNoz832VPhpnLMrvv1QWe3bPdR8Pwxvrwz9qBGoYkju",
-	"TSN/BQ+9jw5E0/WxXLlcMNKBQ2pUIimYU9ALAfr5jYu5lLyRPyDewKM4rDQQuenKnLheIzLLZbFkKZms",
-	"LTnmAvmo4iVnaQ9uMkv7xgyr6VRXnNB1zCWfzUGUCams4QSa5UaRhcF0CtRlrQu3wt26t7QAgzHqpnmd",
-	"w0PvA1OFSnfQR7/0Kbvi1sPcWT+87kZOaP7v/3VFfksEWcG8iUpoxm47AfBR3DgDfMo+b+7CWAKJp1n2",
-	"enow/GMbkvF9XQJ9kzMFOyUIFcQTXH/fouDCcfQc5sweQzQ4o+9/3J5o1YTUhihBt/j4wBY2D37EjbP9",
-	"ocxbaaqLdrfkAh8N3L/VaXxz+s0rkshSrSpNNhWTjjfgbBBIJ++MW1Gub+3TnoJZdnbje/ax99EBHuZx",
-	"QkXKjXCxlTT5Jx4oohKZM2t4jWmhJaodiCwnU35tCDQ0DP7WjF8y0gEdxJw6tIeaJQrEgS0vd1uTMaRG",
-	"p26UTbTMzVWKKyaabXC/kyvbOUJF4ZKnVnwR5qRlXBm5RhJVLMw/woW0xgGdaRZu/Kza3+Hv/CubF/mt",
-	"i7NjpDBj6oABQTBio0vBJm23B28xQMaBTYWjGYMJHCn8nY7K9p3MpVRMAfnXc6ZKXTciNFOydBlazo9n",
-	"gAowhpwQOgF6Zb1R5UG0mvKE4XlMa7Py073zeQVDpeoSGRt0/meWy/GcijSzm7x5uMwjVWKgMMTDhnmS",
-	"FcsZuWRLbZ3luUyLxFwjLqZccM3c+TxBrd6ti2CE5lKxm6EMGJeKBNxLa5uyWVQNpnVqt6V9TrYKT3Xz",
-	"6jfRGCeyN93J+jLWNOtNblLRIavsHnSiqnvDdOCdJoHS60UzbxHwkq8TOEr66rlGVDF3VJS9wBqxoUw1",
-	"2j8hfF28kNYdvA/0Z4u/fiHRnwaHFPSg9srkhCreCAhZW2c6CggqQMZyQVYyT1Uj8buVacYZ2G7mzMVi",
-	"QfM1qpBLnjO1Xd/mRguiV0iREmbE6PJGP1DE+ikInbGaj0AKtnUBt8h8gWpGlR6H8Ln2dOnb8K1m0pRR",
-	"cOpXEJJUG9Li2BPVcdWv3+Tp2LDzww640xAhDCpY4aZpBXu99Zy/5GpffNutD9Aetr3aUaoLEIJd63Gy",
-	"xRqNVmon+ZlHybI8QlaHMKsFX/duPjJNW2H2IBxFm7VG3W4/M/VrwTaU0TIBQ8rpTEileaJOCA0+AjDM",
-	"HzGuaxHGpCMkmoNkblh5LqUGsWBCk8vDwCVtH0BvaB8ecW5pVBF2hYUVkBmg0YoZiOBmUtAv8lmv89xS",
-	"o0vqvt1Wpk9A2HIM9m1+6caOnVmgGV2Eetstm/aGrEYzU05ntx2zhxjAXjYDwI/6/Z/+0qltKtgrK0vd",
-	"fVj5eGt9HGWGW88HpbeW+x7grcdhz80JB7I1cS8oDN6HF245U5S3thlz6qYOUH9OSB/vsztqdwEDw7NV",
-	"vzfBUvqh+kMcbNOWNQwO5sbtijYIROM5DC7UVoJ64S0GdVsSIE8hxUePPC2BUOBHW2JY8RhtP/GJxyED",
-	"gNNQul7gfq0+bTivhRPBsBGF3RZXU475DbZ67hoNfnpath98e+678pO37HFfcHrFKXgHnr6KV6Vde1PK",
-	"M5aOS4ffJk69ND1haCm6Czj6Y5dUqRBdJ3OPHqvaKTZ6rgsSd2bv38/WfpfG8huik26mmftaEG9vpNu0",
-	"st3STGa1+pYmhI+ndof6bYOKWj33O1TWJor3jGdFs63M/UKmEBcBmZa4UTQhjJQLq+ySjocz/taSQ8Tg",
-	"/D//K0ltE90TcoQ8Bo09vVvHibaAuz0PfYx7yMQ3Gc57DVAIGxDzQSEuu11GTjhHDIl1mVkepipUaQ9y",
-	"vV3yyxkmtmBNcYtbeHz5TtMB2/A4UTFjY4zLgdismxTr8tGGnyp+k1ZJ/MIZhO8HBiLbY22sQXxQ81Xy",
-	"B6+dRrZlS9rHqFX2alO/cyfHcjzoICJHhxOqMBHHhk/xxCbranqzfn0rl3K3n7bx2OxcwCAL3h5LWF6k",
-	"VtaA2nZV/EiP7Zy2RwfVj3E7S89bdq0bLDxodWOIwreB/TkXl4RqMpF6TphI1YmD+KelRT2TK6YQUT/n",
-	"s7n52yIAaM7sq16qr9yluxmvc58DCK3sqLbj9YvVtPcOedEADTX8x8I8aB3koUKUB4lTsCkIC9IYIxON",
-	"hwgNxXMMOWzIQkL0DRVkTrNpGb6oaeYcwDawoIr7iLsnJJ6y1dhfPjWeynysBvGQxEcP1Z8G6I0Blw06",
-	"vUYCe4Zhz6mygQR+8WAYFRMlBKqUPcRV6GbjJI0c0DSslkqEXf5ntmmAr3znGrY/vmCrc9/8C5lfDEBt",
-	"+B2jmZ7veVdLgc/NSl7iAUnXLYeM/b7+/YEbwjm+XD99tqumQxfQ0ya4vg1spSKIXomc0zey2xU5zFxO",
-	"FF0sETMQwFA/P26FQv2+nmu1H33+6H0jLrXMtPomZ+bg35piBhpYe7ZzgzcCs/VYvdj6DowKbC7ECRFy",
-	"Veck7aSkKn5xp5ZQPmk0C9iT9lyhXNILeLOeEugGxlAPK/bivRtH4zG0mMo9BdYAtulQmSWyIjSaIQo5",
-	"nshCpGFEaUTiTK4sptjwj9ijhBvsr/h2sx1ye2RCeytkmxQi26IZ9jROQcCCDWJwUqybX9MGvaSa4XFo",
-	"l0XtNohpPCDAO1y0JsZNmxsB0XH8yrH+fS/Pre55GmiGu97yGmQrw0ddhA3SH+/GSrkHG/Xu8p6VLTZu",
-	"ZAnL3O+uvZ2H8oNTyDKazyDW1rTYJERsXqPbOBKUG3B1TP/9v64qIjqmO0CZAgI87QM0yxzO0P1+m1Qp",
-	"dVMujqpxlW8T0/WMaZagX1Ok5F1B4ZhYVyd66iPEfNeRVgoyyi41iZOca57QbAwWiJh0qEdedHcFPde2",
-	"yLWS7A7oO7t4TY6Ovjx+dDgg7h2XK9t5CXU92O96nNzWBVWZ3G2G49YiIutbj2JbQo7fyZXpY40AF7e4",
-	"4OhbzddmxXtb8nswG0XWnJcgnJVVMgm+ZIaJ8zOrettsA5lscCWenf6O/GFA/ODw/EXkUe/RT3/5t396",
-	"eHHrzt5t7azpxEfkqP9BHSo+W9Bmcc2fjH/7J7hX7nDglarCsmJoZwwoASM+tIz9CN5qr3JemJe+gnea",
-	"oRD/9k8WDyeYIXKIQuvWcWRBkAJEsGzDJXZWc57MsUV7RxAwfPGs22uQHAy3Mdu4cR+jbXRj85DvzHDw",
-	"ypv89xIxXLKDGzPK1PPmleLBHmlpLLt9f1OcURsv+c3xMxAyb02fRj6yr+yhPNg+JuvW6YvsK9Xet5Cw",
-	"oLkNI24Nw2eGP+NXrLmpBb0ewzEd0xkbz2XRBKb+2rMxe6JTaSEYS57fFt+wZySFTcCxacu2bk0c2ZiL",
-	"8dTh3TaVhvauq9u4Z0K0oly2ghb5t1/b57ckNwmcOeHW3ISZdKOo4RL97YvCa7x9LZuPSR2bWJ747UTm",
-	"FigttHm0pxSWmt2UvMo1u32stzRw3IIuoor3gWSxYjK4wZRcJZntuGRo5Ph+U5TGWM1+78njXgOJutni",
-	"25IUGaEvk2JmfYKhQ8FVO1GarksQ6QkREkWbO3AHfvnFl8c35kC+FV1rr8DuIHjNqasowAyMAmlT9ECu",
-	"vBWFwkeIF1nQNZmwMEzHmdF8Jkw47N3m9FU/E7G016aZYjYRRn+9Gi+927dalQOML4vJmvyWTPrkN2Ry",
-	"9NNfrk9IXAk8s7/bn3x0dTwS1ffMv4Of/nL9079i6pAvjz///HBQS8ODLQNcPOjiIDrw7bY0WMOcXrrW",
-	"gk+vXYvw3R/KZt9HB68hxX8TIPW7uSS59RyU9ukTMFf7M+qqjK0xFAOSu8X/Ma7ZqNtWAasaqf8jWKmP",
-	"Bl80m6k/1Dj9t2nx3WXnDVekRBTezl5/NwD8XZmB0IxcTQxg1KS2gf/APNpDgPD5WwGB8NX9UT+Y9PI2",
-	"J+Uc3mzSf7aAkprA3uOa6dIigCoLUZ9cTXZ0M7gBJ74x8L1v4i47WBV4jaKAIUppFUC0kUASeBsmkCyh",
-	"4lbfcoYq881KuvDsSrY60onpYsJnhSzU2Lwf3zbeOLR0tzjZW9IRxJDWZwxjiyMSQ/6f8iO71jldYlk7",
-	"yCcIT2cScwe6T+/MT4LNALcKf0uYm5Esypar0x6Jjs1AFEadNS6ZUT0rpsAhqKUjEWSl60YkLoR1h4yd",
-	"ZynujcQFJKxwngp79krmktA8X8OIYWvBrzQSsZB67IxbZhti8KyTGKktHsi4e1Oq1maI5cZjPHCl7ZTi",
-	"3HPBO+MSbdlo2yy9bEaLlxNNufDBo/GUsyxjeXNo6IJRMd4TRu5s9U0WAKipKKfEu/uDCEOKEOn05vQJ",
-	"tQyAmy7w5TKX13xh2leVEO5GP6OrMOGuUxBdZa44Uxqaugt4OU8bsOXNCQ2vADju4hH9otb3JKACmydi",
-	"N021YsN+NPVvybu226fmKllt4uVfnJInx4+/ILZCFkGrp9r0uGxzKmBuc7DqQklSmwqU+2DnCHjGkkmL",
-	"u9hMOLMlI8ELCRBWmnFbUCyyVa0ayoPZLMstRQSY6gvzciPZEmU00NaqX2RJMftJA+ARHrBi1a6yYfE/",
-	"HFqx+/DM8BstybtCapuCGmk9Zkt/3O9vTTLcFAZh+vnd27dvCD4ACREqiMDHleyPx/3GRCma66ZEgBdz",
-	"mWuiMAjBURl3fkwrjUPVtkJbHcHzzfmZ04XWzmcbNuZod5GLIfCsS8aWLB/aZ4b2hMSWlAbq0W7xDn51",
-	"cwyQ2jvM/pWDM/yh5QV56/JHc1cMr7cVYtwEcjLv1478kFDy9xevvyZv8CXD9SSmA5PpOiLxQ6MHq4ej",
-	"ot9/lAj4h9lPicyKhf0qHglzN08vvgUpLsYnuP11aF+nC2YfJ1gn09f5RYFg9zq7ee1c2XOXTWYPZ/R3",
-	"odQUlSGEFm9pF8RBLtHKCCVBxSFkACjLNVEyyai4DBMMBUGTmkGu4W5NNs5tpT8M4a0ehQ+B2tw5fKZx",
-	"vYHFMrUvKH0h06a6loZjH0L11BgPEnwhRbaOyWrOM5Rng1qpxJdKhZLIOUskoJo70IgiVKgVy8nj/iOb",
-	"4SSoKBrXbD9l51Z2gI73sPeYxfjOvu8+v4YmSgC32kbLaeoEPEU6c6ndvFSXZHR2aMuzaFs/1sjhM0m0",
-	"dDAJqNNAb5EyyqI8y42sWEQ+P96VZCdcubYL5TvajeBEM+KWMwf1Hi50c23UZS7RY0Oz8NCgBloxvp6Y",
-	"82XaQk1FArhOYwVel/DbyASIOi7d9RiD44LxSzzXCYnNIZuzLI1Hoqb7ghyDAXiRbSEihZhyjeAGmRNV",
-	"LFmuWGqhFHQkWnXbc9NwEHVfMIIn8+oRD9YGQybt5A+iAzfy1tsIPb6pNGi/PA/btd9955uHHayduf2I",
-	"BxfjQu0wu+MVgeth9lPIVbPxPKOzsWKJFOkWd8eU5jaL+4TNuU3ru8y5kVciQn2AIWQCgJCsKjLB1v3d",
-	"kkJ7Z9VBj93fBONzTWZMoyUFZtopBNSpNiseGWpRpvwHzT7C4vmOokS2on93i9QJe7PZ9RtpvT1ckMND",
-	"R4MPgVAWeWYZ51FFOrR46LbRIq7vyG1x8/UvNevNQJig9ICLbOlYH4uztFjNFVl1IvMc8RrdfbKwV+Ng",
-	"Djd/29jR81A/q8cal4q9S6b0QWkA/RLtZ92GQRbZ7SpW7bBW7xMgBxXRmyQDX+QKMiWj4b1H00pBKwjG",
-	"9p9D4hmDNIHf+2i/ZvNNC9DmzfC9Pe3hl1ykIUO1Hn2rTrBxMjeyaXva7Hfx1DcUfAmc89Q1aVQGs3Sy",
-	"UGCI3sMxXeHEW9Jsmd8sz7KC7xS2whYsa0hbc0MUIHI6P9L243MWdLsvflu50J8fN6bN3TOuGQ7leIux",
-	"UrF3u2kqaAyMpSeEC7M6kEDMyKwYpwclvyokavu42/klzIhsFiA4f+7y1Rd543yEQZN+RcP5B7HRO50f",
-	"lZu2hdYXmX7BWPoREgztWa4tpJVNKYSpGi9kvgUOtTP70BuqlJEuYsUh67tNtlfJQwRwSBe8sXuf7bzq",
-	"yYb8AG/wJ537/KZ7QugtwiFlic1FuvRB1wmrS8ZQxC/dEXa9HcgXVAAETN8d1CFMeJu81bgyz9zTO8S2",
-	"ryupuqrAwP0yR/mxBZfwhlDl2jADNmO1HJ+GpDV/MQ0+9S/j53PbxPvyi9sgAe5i8T803jWIvtXSFX/y",
-	"KCcMerNO2rKsQm/7XjXuSpGxb7nMyvRxe1A3S1S3GBMsVJSLK5ldGWXScBfemHC3DV/biIbGjd5S9dAR",
-	"q6PDgSK2FktEzNH2P4UlvZo1s9wWjrkBCOJrzFRq7+2+QNC0n0RQiK5c1ObtEntXB8kLYch4mfr/DvLo",
-	"3Ar50aZqgSvisW+hglvArZdSaZaSLWmT98zzd14IrN3ScFLdDLbAXbRhRuadygK40YkwhdM/IqVN1FXr",
-	"KjniBfT+9xevv4YaOPbz6cW3QCNvmzaovUew9HDv+84eiYbkVsjaB/C8/XFd50UA6GowWGJ18dbNuRzm",
-	"N2KZ98v/U8nV41fOn9PtsO5wDuXiRGUeyd0SXCGcHvgx03RuGmeQfy5Z7uLq21s0dtzytjepEVbQegFb",
-	"1Ye6g4j7e86jtS9wbncA7kaCqi2rd1tA/y0Y5MekliHx2/WWx/V+CGXzoQp1i95Ocrd5CY3GvQ4vIfg4",
-	"fNn+vehjw5ge7weh9bRzB6UsJ7T1eHls5z1Tt31RpCHurVGW3sPCtCHIWhNLS1xoySLvzrKbbk0od7SN",
-	"9bcAw22xoFUQTvuUDLmZgzelFAhmt3M5b5Ul4lOOBlzFyv3YV7+y2FSHN2WpL05dquqYunp112rYTnD+",
-	"DaWBG3GTVWfxjF5hSTOI20YILaAabw17vk2O1apq16yoWer1QVWMvM1iE2ZKEupr4++kN283MegflMSy",
-	"JanaAg9/C35ihxkl8JRRhOM3ry+wdDkKng9/4On7h+WTCotzApDaAas75bFoKCfaBcfWBux6JOA1W8cv",
-	"Z9Mg5h1djCe2UH2JfPWwgfUtAdpNJmBzsR8owlPwl2M2XkCnTxlLIeuWIrytX+OOAN93jtjerSJXwRn3",
-	"4tW6C754x+6uDbj5bTJahM7PG8xXuCjW3yhzgjAfs+IOngGttDds3UFZsAgxOCSu/LRZ6tdm5fLhF5CZ",
-	"i4uW5X/29rtVpetQ4mmHmN8Hi1+/fiE6v+pkrF2Tht3fL+w9FC3+FlWDXferMQ5xL20Ae1e3U8z31WHr",
-	"KdXuLejyIpEIDvfIxEKoYYnphKUZmlPubT/DMit/uuCipXkXOjovhHJ4T/wCOzjH9uErML8on6QfvnuK",
-	"HZnxlvlvGvnnv/2TIzOYOKhzPuja/Fjk5etn5LdlliIgIS9f/4H8tswjNBIxoJzGKo2H0MzFs9Jr6tK5",
-	"al+dBeDMHYjv0nOp2Ej48qgeFT0FBHOM4GiblRSaVw//+l/+N8xB5qFXVGOdcgul3oBMR25QEL3mqwzy",
-	"hRHclEVHd9i7gmYjh0wPkvY4lN3KVi/tnlQr9w3rL0RYYB9XgYa5jw1ptCM4ccXuQISyUfjdISnXMgB3",
-	"5oWAsMZ6FlfDgiDvLMLMSmAXy8y6bqxfFadp+j+IDlyHkIao8nytNlrLQ+tP21Nsv/ziK9PTRVr57iV0",
-	"iVn0qr+4QqsXCB/y1vI7DHC+Rea8XYnO78NyUPLVmwqgbCFWFSPaRzAgbCzqDe7V4OFweT+qNeFDFxmc",
-	"/Juu6pwxotm1DkLKIF1Jgk5lIy3mNNEs9/kGNZ1gPX/UXAy1TWieczozFEYXuajlWRg4vrYl0cKfRqPr",
-	"fv/Q/PdL85+vzH9OzX+emy+PXoxG11+8+P43jfkW3spLdlunzi0sAe21gq3ZopThfHtIR8DJG8Qi8CM3",
-	"c0vFkpzpHrmYy5UgwDvMWTkhXJOECqs3Q6gFGIpaytfYY+TSm9iJ3FhsA7bodvKVW8R2VpXwzjWgWSSm",
-	"ZaSarHgGWR1Kf/wJUbBWVjVHs4nFItIi5ZronPKs9yEbWEp6x7vEPNBO3hXM/txUwLC6AY1rnjNxl2xo",
-	"QhUzd/7GREqm36/cw7eEadxQHqhd6X6Liikr+AvZWAgaom21JJeMLc2OL7hIg/ojXBFt5kQ6lARBI8Qt",
-	"SORARq6cJkUb2p61k3wAYKsFfuOfrlRSaXUcsYFtlfF1XoikudLg27xgpXl2xUUqV2TOsjQoK3AU9ft9",
-	"tyKYgTLDogkyS43giw9AtlSzxs2gpyuHBtvHORiCyG50dTQXIyo3ISiL4k9+UDk3GGC4ZO6M3aBxVu/I",
-	"BwDePgi8tjCLfTtrlGgqkxMdqIZDg8puGRmasiuOZqGOgLqHR9uiQP0Nu20SWJZhOMv2zBauB3+FIYkv",
-	"1Bm/mSPC+sGksfxyuTNh31v3/0144a1qZTrLJARRb/ML+CNKqKVLU5llcqVCjJZrBExORmbbKCAd1tbK",
-	"ZFu1qTrwC9tL9duzoM/qL4GutPHThR9N9YeXEhWrgGh9BOTEvkErzFD8ZqLpIvG0DVm3h8y/gbUpuXIO",
-	"rqmHjroYyZCaLjgm0YOH1ZZMeFyMQ269+cDt4DLN6bfBv+N264Gdxq6cR4IZTmojOKFqrpDEH9TbOvX2",
-	"z4JV5THN+QWUQzj7Zx2UONiz1lCRGkx3J4MKjdYVG7XLuuyDg0vgUXkKq2egMtcmegTHOLwcRQE9hzpa",
-	"//AJPZw+PXzx/Q9fvj8MPx7v8/Fo0Jw175tGF8NTAk4GsEglMvWJKxazhy/jiMSF/fePy+Xi+3p2v0eD",
-	"XTrn/3D4P33/w1H0aMt4vrWV931Cxn2yKEB4PRZFQrOeq+NPpoVAP2gtNT25eDYkl0bwjJdyxfI4GgnV",
-	"ue6S35Kk/9NfFvS6cx2R6/GCi+6fkiOMhoKPGP28oFlWMSuiS3QkKiaCE9uFzeio0ph0GtODd8PuyW9I",
-	"cvTTX67RLleTRvpt010ftXzQxf/t5r0uSqt/AE03HepvS4pQC6CEGAWbiFWsSVn5FOKWHWmyCP2t7uZK",
-	"WVuqXEXKlpzUju4Nvmg/vYD3cezVevp78Lt92NxtqnvfL3qiDbcts8I0oLCmU5YzkbDm8tu/fgZOgf5P",
-	"f+lMZSGw8ra1+Xcf2j9uyYKgwdb12dumBSxpxC2HtX/o7Q0M1J/M35vndxdUN/pS804YFvvjr5/9SKiR",
-	"XllKJutyHR4oW2WskoK+xek0F3FbsSaXEcWN5wMqon8wvqAM0dmQFm1CC1i6B8o5XUgiF0xZ+E8rW10g",
-	"QVhqebPZ2B3i2mJt3KtwZ/2i+4sZRBLt7aoOz9fHQ+pbd6gPLm9UGBeGWbjsj/bJGthiwiBu2HBTRPI0",
-	"ZLYI9OWrGplve/E2NrzS0OZ0bjBHbNzpTZbJBdecZjHpnJ1+i0CrRArNRcHFLCadU/MtCBCWzoUjCjml",
-	"bQhPoX2/Pcv0TZ75ZioHJmiyNq9b5Py/zUEKp93eQlPd2xs0g2oXe2ztLSMPdhZvc1adsHzbXsUNd8FD",
-	"v7a++Fq2TUycRvqRN8973JFRFD6syHarUtsfzCg/qt+wDdm3HGKL/wZz3p9SkfLUZcXY4wSlV1yxLbBI",
-	"GD5zMINkLqXaFgmLdrmdzbhUcy5f92YjC3pdqR873lJk7m2bMnekXl63ECmzuZwTt1qhoGfx10aPKJWI",
-	"29hfpWbNGZFo2TFCvS/5conaDLJpSIh0QhgU6JF6zvIVV83pJVWxGNOJGjcX4fvx1+fPf3SrYiTaw4Rm",
-	"SQGJnj1hUBtibtPobrkKt6n4ULsbYWGGYLpbz4k/hZE/1nY3tt8bO8Dq+r1kVOlDtMEqe5xUj8RHD6//",
-	"1O89jslf//P/YT6tobAynjbI1OocU5M1oSMBxgIUN+qoS7AgWutC52m2YDylhGlCs15E/r43EqfzXC6o",
-	"lrO8R74iX3xxTDqDfn/QJYOjx91eWdUZx2Y6PHqoOtfdn/4VIVB0JDbtGoHR4vpPyZErwEiTXCrlinRr",
-	"STI568Cnkbh41vXRCubryjS6kU3wYebr6z3KlSAXz05sRjI6EuWxklNHTMDzBAcP08Z424i9sdbT66pP",
-	"j0S8UQykV4cy+UKSNYqF2K7gcGPG3sAyo4oFIK0mSmYF5LfKMAUXpuq1F2kktt4kQhcSHJJSQWkUxNMK",
-	"uVHfeyR2FvjukeewHKhwIv5fQbFMP3wFGSTtcozLr+MIM57722yVtCm/hiB2VQLXqiAuIcEMaQ83/mU/",
-	"D+Dftf9+bT/j9wr+BQxYOyHRX7mvsUv/+UxcXbzL9T/Uvtv4PGh46T/Vvtv4vPFS5QuAmH0f0oPXZa2Z",
-	"vcJ8fKX0EiBoT2pkD7mvlMOzrCnEB/U2Xx+xbUVCEIiCm9Dk/6u7x6ovRJWud1LLSmWdu1uiEyijz7KU",
-	"ZGyqiSw00fQSgi68mn2vC1YDXjEAgnrwaSOREoylCtOEWXKsJZmwbSSvQ8EfmMNMzZ10bxmJA9+cZnQ2",
-	"Y2k3Ggl4GEdRhWaSOJj1kGDbuFbA7M3DDxS5eDYSYJAgrvLWoyGhhjJbjOxKlk0acmvEpZTNcmbGbN5l",
-	"LJUL0jEb8OQx+bWt1qCWVCgzBQThANU0u/VF30bjVIT2QFYfNKZVrB008AwnRc71+gKkRizzzWjO8qcF",
-	"VvSvab/ma5nzPwNHGpKv4FnUQxIAD9lczj0CUB81JHGJto4jQOJ6uDXUvagArqG2RbrgIj4hijGbkR0C",
-	"pbkUDxSJrw/dzTpEyI8FyaLYayRcGFIpxM21Xh68fw/OwKncnFKQ9RujAVUlXWQhgCFldCJzaxoPdHvP",
-	"kiLD3tVI0MrPG6kNIjSsm4vmGX3IeUlZrs5INBlP1hD7RRQD34SV6iMUcqCpiCwziZWRr1iuwhAzBWfL",
-	"5htVEfnDU5d+yzRJRQXNNRIj8dlnyBBxk1zkF9UoXfQ++4yURfKMuFEWWC3nAo4WSDzMUqhCzHJOXcyL",
-	"0R4sfVEkzelK4P1YFpOMqzlLyazgKQV8HmLE/brj4pi5aav9YjDPzEgH5p4L5LuWEV+8fgP3dCSWOUsY",
-	"lMs58TYrQ0zcWoA49a6gGUaLLlmupHAJda1Rq0ee02Q+EjZfsEjDQD4vW+ZsyahWqPVwQWJnkIhhdX/1",
-	"K3IqxZXRaaVQI3GIWdaREGPQm1kfJeglGyfQ61vuvj1/cUoePXr0hHRi1A+GxBsUYkPCiOnxm7enxAi8",
-	"hV4WukdKBRoOMQa7muEBxD9n5Jtvzp4RFCJUz4wIC4vgj1MuuGbk7Pnz54dfPD4mqI6oHg7bYiex5MvX",
-	"9GsIrxLwzvrEDMeCvzC7T5DxnCtNOtR6mLDSauhSKgtHU9NKRQiE8q8eW5ZLqbuQasvoR7ETjylRZtaC",
-	"ZTAja+shSPSUDXt0WXhx9RXpxE2sdYhl9iAnOCHOruCbMouUZNKoktRw2SyLiMJ4BI2Crlm/hOpkDqCF",
-	"NfZm2gKB2Nzp3Iw2VbgQcHBSmSDt8WuGBGvCTkiSccNniZqbJTMNKc2zjPCZkLBjMBmowm1rwppZRgRy",
-	"BhIjRufEBrwqQtPUvoFbDyfQKFCe/KnIES4V2YulIqe6AFnCsBuzEnACy/M2JEeGzX5+TJ5enJ6dkYxp",
-	"zXIVkZTPzDWF2Laeofdj85+h+c9hHOGUKFamANWB2lfN+YJ3SQelDBKXxzvu9sg3gkMIHoCwEV9gWgtA",
-	"2zT3Ua/uQhp+Zhqx2bRhTsBWRgJJYfzw6igmuTSKCooge/DApzbBFWDCGXD9kXAxINjP0AzkR/xAfgSJ",
-	"5Ucyy6nZ5R9H4sfDw0P/f/NgyE7Jj+FekR8hSxWyLMjeAdtttyiy2eTNj+ZORfhwJZd4qWB1zk6/fQiW",
-	"bNtpyLXJj+Tl2asLQKrMXLGpH7F95OaeJwW8KKpVjYqcRw9kdMZs2E+t3iV2X5URyI+GkylNp9PGbpG7",
-	"lazNiLs2W5/HEp0QG8QU2mdylsg8rayJsiNAoYT8SOAPrjQwJTNtEFaBpJruC8eAcBSw/dDGSDyvyDIk",
-	"40ojQ8eDYOuApguO7BbVSigQYa7rSDSIPkNC7QkzOq+5Mp99ZsiMFOyzz6zGuwC7gGlWs7TnZgL1vswQ",
-	"WErYtRHNuUYbQQ5E1MgnECivPEkzTzumnzFtuJPh0K+XTDx9c0acJOmyJAIJg4AqvELlzA3FLoXMIfnj",
-	"9/FIdFw7j3p9dIQqeylwocCEYW7Ha/PSAFbXvHL2zDBVwRJtLZ/KEOunDh4WkQXNDMPExPpI8+EUXMlL",
-	"ZjfIjOi4f3SCLIu7by2nMUKdXSkcEDz9qEfih3NGMz3/s6FdD6HcAf65YDrnibIBvA/lkgm65L01XWTx",
-	"SIDsIaTtpBO7hYOF6DrC9BxsIY4KYckts5GCbBRV6sSwVXhgH9pvf/OPCoKKkVaORGzLyxhK2VD6KEbb",
-	"S2zlkKZKSEPDJGxlmIlMLTMz4pMZ0edP+kc7q8aw3gy4aPzQ37iHg4fVGGjSiUcHo4PYzBSA1XOZ4fvd",
-	"E+z99OJbkrAsM922rkMTkVjENv/khBp2vZyvFU9ohrE7HRA1CZkzmjJYZvj6qOtAVrajLx46US+2wykh",
-	"qGY8NxW4cc29K1i+HoJiaca2pHo+5CkyvxgHMTxL2WIpNRPJ+vD3bA1xh2hLt3LSgisj3wqr5IZLDw2h",
-	"wM2Vs2/nyFdt+uj4oT1qr9z1IGotNL2ObKEtoz1ZHo/cNgD+GT563O+f4OFBwsXVSBgJ6NC2NilcPSIj",
-	"qRWZ9xoYqYcnzCjoPtdUYEBzQs9ImDtn5A9/bfGJCEI0IXMFL9eIXLI1yILHg4Hhu4/7fVRfDN0YiRHi",
-	"fwXN8CqNDpA8z5nhba6iVnxiDfNGQJyZgdgTbCW1TJoj/LUEam86swI14qd87S6uKlKGV6lQeHSyQLU8",
-	"l5GIw+WTgoEY67EgIPgB1b4EbCgovRlPmE1OgdFBB0Z2zTnTNF8HNbZCJRdxksomZOr1e32btMzQqIPh",
-	"waNev/cIEY9zsAc4Kmf+nrEmaCKU01Fk0O8HpVWWuUyYUkC0Mn7FeuRrEJ8c5ev5bIdcirP0YHjwd0z/",
-	"znZV8/YN+n1bhVS7IgQBxftHm0ADD+pNpinsAi0CtXnAMM1qPMb+mprx48J8IoJmQKkrxpSD4R+/ByfK",
-	"wmzD8OAlv2JQ0SQ60JAZ5o/lzBUWu3E8Y+siv8mlOf+sUBiiyK6XLk086oP19T3BR6B4DTBPI94a7qNX",
-	"Mr/EOBSbgU4RnRdK45na2JNXdmQ37okZ18NlRnltN+oInY2Ftz3cx9IHy7bw89i6CSGn3roTb+eMOGHF",
-	"62oBlVhRRSYFN1ItWARbHHvb3H7H3g1yj4UOh27kLDf8iPynp69e3sf6vw012l1Lj+JTSxpjfS6+5Be1",
-	"vzobkGVZhl8WeQ4TfNx/NBKlk7e+KyReyJSB4HFjeTEjEJb1xYjDhw1t4R2w4ZijkDpPBGhrfpAwkk61",
-	"5hgphOZZCSQxLStDQhcSTCHIzAP2OTJiAE8YOCO5ViybQsUnrBUWB9pFpYhYRPiUULGOQAqAvAc8Jxmd",
-	"bbn757gr90iOgxJjm+cVujdMGNbz1ufTvPXo5rcucGm/EfSKcvS37zra5ch3HGuf1Gvryf7sM7CUDz/7",
-	"rG4c39B7Ze7UNxAsMIsIEei3mPLcyEuQzR0xpHEQLhGDEcmK81b0EWSyHomYp+GPPfKCZ2AtSeRiYsRg",
-	"kBeffv3shMSGoMEd4cKiilDF0TK2WUHMdxGZSD03/KYygh75PVsrBsUquLDGkyVVyooLWE1kJJZ0xh4o",
-	"EgeFKWIofOH+Lj3KkAYOh3tSe8FcU8BbSFFW4zJNG+kQHzITkUv6rmAnIG9VDZUpwzALmYMXGeEqC5ra",
-	"BQFS4jqPUCfsN92il1zpU5dQ2OsLCgK4Dac8AG3ARZIPq/GY7e5QiJN6HzU3W0Z23l2bPnvT3TXpY3na",
-	"NVkJzNrWZpCPuFWjQZrj+mV9TvOMm9tWOdlReR8gAqphDObmVAbQBha42f9Lqht69zdvW++Q1+VD+35D",
-	"Z4wo/uetvYBCW+nIx3I+7geuykHFU9lYAK5J5qreb18YGMkGXu0tA/PVbVofKgVizff3yPfg5AIUt4Hv",
-	"vRYMJgSxSEA7gPcdt+F9X9HUwVvhlaObX/lGUGvSZim+1IJbvpD5hKcpAyzh8eDJzW+8lfIVFWs7OvUz",
-	"cXPPv08xzIQbJX4d8HDLr7+PDjYMrliOsE2+sCrzh4ye9yABYC01sEFMue6RM+RS3i0rRcKikl/axJ/m",
-	"VqSIa8JvxtYggHlGIeQcjMBGssWWtoiHmP9+g601bUz5CB59m/P1fu/XNh0IS/79wq9U//jmN76W+gWE",
-	"qfyN3sGnLiWzOaJGcwNwg8VIgA/LpZm479v5EBxGre7o7jvpzH2JkcRTrNBnUTtBxWGrqOaFiFw6EBDg",
-	"rVMl8F6BAW25ZAJ10l038SlM4Rd5HWFoL+VWqwSWo/t0JX8BVzI4euC+SyyRdzfQXqZtN3CPK+drrsJx",
-	"W0r1QRcPY+QUoUYjxlFHJGcWdu2ZYC2a0qONZc5nEGPjACZQXBFYZZmnMeMCvYaEg2k+ds2M5TQ+wTyS",
-	"viHPR12EHHhTNF0DOMgKHj1y7nCB1WH4JJvmDf/JaK+QjscBhiw6ssMs2YG2RgJw8BCdZjTb2KMvY9Kx",
-	"PrDmasJdS4D88linUbxE88DYLv6JNW1Zn76L4S/EA+W8OiMBBamp8/E7jBjXkXe+uNk+UB6aRXNkB5BN",
-	"iaqRKAug98hrl0LJ2vUsOcVzOqdckIQKzOcGIQmkc9x/Eo0EOKBiGweqxvZt6wI7h/QWnePBIELH5wQK",
-	"Z3s5qXSOejZl2jvxSLaRwGTyZ6e/I6+O+qQz6A8G3cjaHQIA28XrNy561RD7LrhUY/Buje3WxUMcA24r",
-	"oKWQE9qQB1cUmiOG1MY7+Pzt0KA9LGqswPhttk2wVTwkVJOMUYXROi58AlFZ9rDRDAyx2M6CXo/dL+Np",
-	"TgHIgc0spNJk8Jj82rv1XPybG8pIkLJZc9Qyc0qrk3BDSGQhNFQ3Bb+XbaprR8EFxp+o8SVb6nAaFehk",
-	"8GBsMUpmDB2HA1f8OnJb1MUUZz7ZK/Y0kXo+BuDtmIlUjQVjqaueP7STMcOt3DWzAGDvsk5km9XWnfA5",
-	"n83NZwtipnkuV9YwCwhfqvFt0+EJmKBMIxZphGOxI4gA2WYYt7ZBtg5isZqvMS3tjAmWU4A9xa7qvzdo",
-	"wSJ3m+QHpJzPHTX+QAkC2NhXMl3fmfDgR+ZZfhVh7wtEV4SXo4+jS4Rh+ei7h/5fymRLLOcbqudhlVos",
-	"gxvXmCOkcKlOMdrl6vl3Jjj1WwhOp1JMM5vC6PioxZje0HUmafpWypc0nzF873GbBVDFEouDvGIpp2/X",
-	"mMTyeDBo87L1hBtZ67nQXK//VkXD53XIHFA5ELGgkAdKXkGhQycyvkvuQlxcZlL3lhhCeB+GFLpgACAE",
-	"ZwN0pq5msZ3Zm6//jvAFnbFdCtibTOo3X//dfapgMIaHdhUaTLoTLiias9o4g2GWn5Sun/1mmYMTaFsR",
-	"wVN070YPd8rv4UpdlGBiLwb6EKgFzS9ZakVkq6HZmdvw3SmHkI2RmFCRosJAy6T9SypYRiYskytQWPBq",
-	"emwVRYwMoJ9GQtAFCJnYvo/ECaJ8TOvWS3TT9b749iNcb3U1+831rdAdny70L/RC47m5/wtdAu7b2VSq",
-	"yP7aHT7bCCmDqhhLoiU56gPE0sZ/BLFsdsKg6iHKhJbaIQKZ8TaXt5y4gkBGHYrL7+NSewPtyul63R7Z",
-	"QGH2yJsg8A1Cc+rRaVSsXQgXePTnwNmnWJKJagt8VwSd0GYxLFE4qWQfGwnQvhQobkiabB0+oujaoUEx",
-	"+AkqlshCK57aQnY2PJClI4EaoMyRkBGK1m4LULBWcQx1mnKNsaHWNI79AOJ1JI77T7ZrdcGi/OL0unJs",
-	"eyl2/XsZgK1ptcUba21YSx9QEyH0y8aW5SnL/92R3U862C/Rax0GTCgsUoTxvQF7CblASx6zg6dYvnMH",
-	"JvpXErI3W/IGkb91w7JhLbEN17IMyWV/jrEKJrrW0IaWssTaT2xVP1RITUussWYFeQpNg428rAcLiY2R",
-	"1AMCFNOiohGOlqa0zvFg4ImyFKzbI08rDAWTtWdSzFi+OTPAiD0ZghwLkcdckSlk2RyJcygWo0IXIQSJ",
-	"C7lC5qmaSDxWELsLL/zdE3cc289E2Lda7HBULP1ErD8R64/gS62Hnd6rO3Uj4+Ida/SIbKhEDHuYQ4MC",
-	"AAhkHW/DxH5bS974CwQtbGTN3KJ0Vxb+k/b989+7b5uj2hvhDDts0y3V8KiNml1JgrP9npGzIKDfNDsS",
-	"W0L0bc62CdXJHIMVpSCdsKPuiY+TH4kFdaAk8LG6DKXmls6N0NSpDcq6xiGipeLfndDksiz8ibJKZ8Eo",
-	"mAZiv0lxRIQcCV863aZlWCwhyx/XNgy1Gv879ME0IwGpySEHs0tGDk38+tnNScvJmcYUjwqU8ZGA7Np/",
-	"/ef/VnMYl8l2euEij7XMWE5thuc4QgFxJJwp4qd/GfTJr12xGfLNBXn+5im5+O7wy+PPySuEl3zZ7/ef",
-	"hbmAqvt4sokNsLgUM/ucp7BGkcOJjUQl9Q187bAEDjf2tAwxhaV1udMx/sGJqUayVbC1T112/8r5AuSF",
-	"tElEfAbyauYG4tDnI0GN7mtL6Rtib+OYKCw/VGcJG4dAZQ/OOYGsjfY5BCRArh1lE/u5XlylfosgQXtv",
-	"2G40EpBRBMT8XGJ2I+ejx5zUtrw8JC8VzOgCQiGcwR5zLIUPC3fcf0KsydhVqkEbj4vTRgk+rEgzEvb6",
-	"jIXUY6+vdCOv65QgFsg3JIjHPnl/WdlIiFApm6hZg+yzc6rGU67jbo8cDwZDSEUZrrnNYxTuZgD6MX1W",
-	"jj6s9Tg4t5DQgCJUZouJ6dtqyu1flhrSlPb5I8MHmhK5t5AkPEhUFtpc9E8qyyeV5f5Fp3OUEWhzZqAy",
-	"MVBLCSqstH6DKhOkMnr4Q/nhvdNxLEm8J+9/YMXBxDepS/5Q8xO6nBVUI8dzHoqREHLVHfrctL6SXsnH",
-	"NNr6gSDDu9hd7uGMI9ERUrdhFihPmYcdt0FfKgaD2ohFRI6DJS3CIj5Uu9zXgTMBZrWiiCMEw5TN0K2c",
-	"x4UoFmJAcWJjLsaQpAkSXQmwuKkimdc5nhoJZMYySxngUXvku1raXGx/Qa+x7TGdsfFcFrnNoRMIMFzZ",
-	"diCzLy4g7kSEFdUw9R4MrEeO+8cui+EaCypCCg3zIBjwVzJvtqw5l++ZeCGxfsd+bK0U4w9ujsjcDvPa",
-	"J5xyk5ssJAb3u9yBJ2BORP/URDGhtwXMUb1/vOC9B/O4rdgV01Nu/Sct/GdnJZu7Yq4qtcfyTlXwm1jI",
-	"3brFnyoSv3l98Zbs8L7H0aZNrFyHKUaVbzCX2BKFeIO9mKsLOXFHIv6759h1S45plAjI4Qar//Ls1YVP",
-	"QgZukeTSDS9VjY71r2V9/ODKOB4JH1WBLpLtOkJJDz/EIR1S1XvSF5oG+sk7/Ul7+KQ9tCH5fyiokUnW",
-	"O2jfnbqpba7NVjpBTeDPMJVCGAeGYqpLMzdZQwTQNv/FK9v1PRIA7GKX58HO/1N2gLt33WVZkPG4elZC",
-	"qIU7gdvO7z5OglDEADupOX8ksXGN/qQe9cgbqTRm8sEQMYjjMg9jymSxHomyTiFa6416Vz/zrmnUHK+D",
-	"XzqD/lH3ZCQYJDzJy6lDOGIUmFhd8ZQSlOEbwRpPIxGEYJZDZ9c00TaarzauB4AA1iAUGToyEm6gwgon",
-	"CPNAyATXUK0HIhdzptB67etayOlIBIZ+LN4QZEMo60qqMM2Wt6WruVzBFLIM4th65Kk1AJQZ2wvB3xW4",
-	"9lwYAReV2s7xYLDDbPrKZc+5DzEGG/+ZBBc7swaahTprQjNnXKnt/InfYchjgcZSoG53aZDdPj68ds4V",
-	"k39YcJdjJHHAqR7+YI7Nv7fork+i2C8QKAiXx1OjqPS+hSIPlobal5lVpS97pu9ACItcqXHp09SEQfbx",
-	"9gylSEmb0qstqZ6Xli34534sbk+JWrKET3kSkLOAxrWwuwWhc+WIyrxZR8dfHH/56PPjL25In/X9z0Lb",
-	"S3n0k/Ht57/+r4Xbjdvfb6t77e9xaUaOATu3dKfMClEKkuij9xkNgmrSESSCwBwxRpEEHz4U8gPbBiTR",
-	"fxd366l03sgs84k/oBBQmSuuMcMklEmJSQdv6bCEuUAWDCMP15NMEpqt6FoRxTTpgM/W5luH9G1YlNHq",
-	"wEpCrRft6o3Fc6rGC5mz2LkoGOSUhOIgdq4rljOXk4EkcmGrOIzECwCfGEGpOiLFmKufhpmHnJgtRcKG",
-	"rlko14LVQzE5A+biQLcK43kIkFC2X7AhUpwXOHQQvAFJ4m1fzunkB4olSHq++gU+xhVkxNVMuK6D7mxF",
-	"IIoJ3vUQQFAg8o9EXgCGxAUdAdiph0JiHJHYft+jaRoPSWylR4RQoMXYQyx6DuUUbfd02ifDX+MupANt",
-	"9Mj5F/xP4SAgS78OM6uUKU/M0M0pd0XK/cOhI1AKrGzRaIs4h4aew+ZussHbpFI8sZyqHIq5Ae7RKcOC",
-	"io0ZPM0d2j/X4p2mmzzq97eXxvvYHBM35wVrRn2EqR7/NpJg/S3KwshazLGFOmgVOFsFi43f3M4YmRet",
-	"vUtBDaeNsGkoQWizKZFOUGGwTENlKR2CAKaAERKsrDZoKBTaKGpZrx74hOiByO34aUmDh4SSQf9oJBaM",
-	"ChVUOKoQd4AcFsKGz4igcBxWlpkU2iEncWRl7RJrEJI54hEN57TVwyPIE+S3lrB3Bc0ioqUkU0O/Ma9P",
-	"F71TPMusjypytcIspjEM7KmGTA5JTlcjkVJNywRdep7LlSB0Rdc9chZWxiGd4+vrrisMaY0TQdaoCVtL",
-	"m+nHJp0Hq88wBDcsCuXq3mFKQ/MRQa5un8r8WSfOjGSWxMequzRfGZ2wDNIB0lwBTx+JzkY+JUVmEsvv",
-	"BHhcPCx6JV39NlsgDku6UyjbWEJxT9wl4WnFxhXUsrSVin5FglI1I3HBjGizUb1GS7Kgl2aEGiL0FZ0y",
-	"TAiO+fLN1XCIm5HA0kggCShbXWEBw79kS2RJPgXU4JgAUARhodaU9gAsdmLG8mXOUeKg5OJ3Tw8Hjz8f",
-	"hgVzMP+iX3wjBC5prjBX20gwkUgf3UA6UO+ZayjLmiAodMHMsbeyk13RBdWa5d0T7GgkTi++rXQEfKws",
-	"HaR8rqicrrCy0mStGRblu6ALRi7ZOnLJzv2kIpRyvZfPleVK8ex99pnLrTYSxF+ozz7D6jS6yEU5r0H/",
-	"qJZUHUYBQqozddkak4jaDrf3nC0zuoZu84LFJ0RIolhiboVZ0dKNXJ2OM0/rcE5DKN8TPhhUYKhO1xMA",
-	"Lsg047O5Htr6CNA1wJnMgM0eWLS5FTZdC5ovGOBpXTb8HGaCwGuZE8hed9x/AknEcN7Vmg3caCplfq0p",
-	"F1zNQaTl4DY6BEy27cycZUucDEkxHTw2lMW/PpcZorIu2dpfLXN0OjEUVknUVdwdCcNWK1X/2PVS5to8",
-	"2SPfwShPUWo5fLtesiHxL5cZ+kbCVrqy9SIRRu50nY3jGSMdMyJ22THU7q0UGOg4homUJnbVZWLSwbLT",
-	"NOue2IwAcV2cii3oO+gWyOaEOUG0c9zvd73hCA4oV+Sbty8OvyQdQx8xG5u5Ood4HRc0vwQ4GBTHTLsI",
-	"hDo++rI/Eh079QVdmz7eFdIniYxHB/EJefnCbNHp+csXWAyMiVR1e+QlFxBVYMYKB3IkfIFJCB39Vexy",
-	"D+D2ALjOULhLvlyy9MTWl4aCYuEPPZwXHnIsLgD9Wv0RN6xHTqGumfLeScziKNZIgWwxSSx+BrURLfTw",
-	"xyA/n1yZj1YEMh9qVSZ9pclLLqDY45op8iPoKNBCDB/g/dhVR3SoFfew42tlQdAtX8LrwJDKl5HVVV5F",
-	"ndoWg6yWjHNvuSCRys8R+es//++kX2vBV3HzLwNwMKj6bA/T9h+gHVyEMYclEbLspWSetZm6cJiNF9wP",
-	"ttJ3hOVEGemTDj6CothRF2tJHpLXQQZHw5RzueqRc19k3dY6XYL2SSDnYIXCQ4rAEmxk7qvdhVDiRH8Y",
-	"XERHIRnV1Uaq29F1FlxgI7UegvXquLKkZak66KbWQ7Bi3R45lyvLaW0ZNMOvvfRjWkKoi1kfAJ/hPQj7",
-	"Be5nLwUaZMUabgGICPhgpRByoRiJe2AeSlnCFzTD/KtQmc7RNSDCAqhUfNR7zA4fxV2MfyKGrhWKilS5",
-	"5I0SipV8Tb82BPVMTD3ElWT8koVFajH1GJbW9SsCSUMg/IsLEGIsp4GqiNUSJobIrjFZrTKTfKCIudOe",
-	"ssLJwtdFWBwzLeySpm4JkdRQV1WzXEP83dZqNuto5fCSvaNiYGQfX52YioCmWceEIXaYPhOC5+Gh4/6T",
-	"z1EWCmrq2UStS1tlsnURSDwezc9DdAueGVhjzDpu1hikRFzHzl//+b9h1hsvZmPNeEtYkWzJHEoYWxSW",
-	"eeVxv29FbvwcJs7pusxWhtEDT0P3tc2wapoa9PuReQM0FrjImEwVxSRbm9EoLNZ+xaz26FuE4m+YnU+K",
-	"Q6Qm6Fk88TlL6RokoYlEhDWoTOh8CWpOPVDQKBbGyQMMANTpzm3NUGv0dKkSoP4rLnmv14vdvqFN8BpW",
-	"YTgScRyPxK+sLIMdB1R3OZdaglRweEQ6lrVustDuSJjjHTmtCRXKKj9wpD/yNCFyFAbS+sBWRoKb51n0",
-	"8ijq9x5H/V7/qD+Iop1P9J982fzEIDrq9c0Tg/7j5iceRQN84vjoCJ7A0+N+j+Dlx/3ou8N+/3iw5YGj",
-	"R4/wgUfRwC7oFuDBebF/mFYg8f+erQ82zXXmZMBJ82IgsAzMJ+00YcBTbTHnfWAxoX1GExytkkNvG9cd",
-	"1GNqOzYfFQFmFVqGjpQQ/q2I/VISv4NSP+UQveRuRicN86nFxGwbkJP+Wy/aa/fC+3vLSFIESN7owClG",
-	"1QY2FwI4PxbgT5FEmjkvuHjJxEzPQ4NymJvv48UXnhc3hRWCacNGE7qopNyXjukYedPS6txq8yOxYcOJ",
-	"0BtlX7KswaertxtmXRQBVqbJVrC50DEYD1xpR66c3mN783AsOQV3k0eloXZdNV4YBboNvGYiZcaogMPQ",
-	"DtED6InCZWvOC/HvMlfzJzTPLzCfpFQaCmkLZ/MPLnPowSh2YanDaMwG58UeZaq2OzAcvXGOZ+oMgEMY",
-	"sRP6bfmIWtUANLt6/wx+V/FP5yxhHAIaqwRtWwHTW8g654W478wyZljbafUn/MwvoTKV9Qfg4b3TK3bX",
-	"wBoLpakUYXH2lertsbiLHjkvq62MRL1enBNDnRVLeS/bZlhHUEzOJq+wZfR57n2CYRWcHnnaiJ5wZXiw",
-	"1Rk3MgpolHYQDrpYKSVTLaHgI4VlhkluuAoryQRoCm9fPw9RRiPxjOWGttTT2zhK84fTKPREFFklYFyN",
-	"RMoSbkhWUHPP5iXkwuwkdOYriozEUS/oZVUZ4tbI7yGJ3aTik5EYhE0kssgwrM87WWuPP6r36BOZcGFB",
-	"MrU3jsM3rAfDLMbCUG4tAbjlw8hNi9byBGHntbYe90JAZDPuxmcmqoTLW0OFPQ2YvCfwPeC4wt6ieioa",
-	"eL3SZcdnL97MNJMzdMqYozOhySXYNcHIFSSwGYnPw8WpxNAPSQyJJhWoT2byX4TPBqH51rlE7VGJ0K/k",
-	"o/Nxat0h9G3PkKFXFWSdh87BQYbWHShLTokPGLW0JN7OLM89JuKXyDPd6LaWYoGfP7HPn599XlQzRiHi",
-	"sxB3irVBXmov8YcDbywxKOkPEIPQHGPaN/eV1rKuObKhSuOe6vYIQB65Iu8wKJJbmiYSVuejlVJmNpuV",
-	"c5aVFqFOyd3lSmDecpmHgV2eW5QwQ2thtnp0WcCsRN9qf3Me1GG3I7EVHER2Y4PMilZJNFcbggVUVLfL",
-	"7QCHyGE1XzAHl/T+fif6Q343YLXgiuXJnGzLkWcdIBhrb3vtKMYCklgXyuJuj7izYDe8hBADokErlk2B",
-	"RWh6yUBI9Byk5PuFuBEmZJPk22RjWP6UZalFD5m+IEO9z91mXWv2aJx4hxXhaQUTFKJ0wFsARgsj5xme",
-	"aLPTOOZnuJ0FGM+pChu1rNxNDTkxLiXObrt92S7gB7GRuzcA2lH9TGnAbuZfXh7Bo8LzSlFEC6P5FMf/",
-	"ydx0/9pvmvrTqGVgeHrnAvz1nC324eY79GLb0cMfvE/u/R1rxtMSlIDkMiI0yaWCAsx431wYsw1zjkCl",
-	"3VCcIQPLLubhu7KM1NYKAa2Xp2VmThwXplFxDAATTJZghS1SOlKxrYL6Jll5efbqojL1DcbmgA/Ol1ON",
-	"mfMjupvAufvUEapr80lN+MVXFKzfUlo7rXemMACkuKWWEFZAUqqAkhU5FalcEEQmdzz8+GjwJZlwrbrl",
-	"XZrxKyYQ0axsNWXFkpxpm5oO3FulQ0tk6xOPsgA8CUDNwf1qREILWx6JOVVzzPoH5rRMzozwtl0Me2uG",
-	"ek/pBaDtn0mOgr5vcHjCNkWlumM3QM0B4SR++fnhPgk590984G4TioclIDSWVLQMksWnvessZRnTrDV9",
-	"OWdX8tIitqClE4ufKtFu/aNuaZC2WVpsYi/IRjISAXTPqXI5tJtaeoVyRhOpeAbDdaTi5vj5DxACvvnG",
-	"qHYN7P94c7VwWT4Fkv8iEgKbrfjwa5Izkar7TN6rbD6LLQl7q8HhgYcGCvWNhJwaAdye/yDvYqwyuWSx",
-	"hY5NqGIhLh8KH4CBDSWWi2fQUuklit0bcWnwL4drnltxkcpV2eGg3z2BaCydy8xBURWHPLc//cuAXDwj",
-	"nRXNBRczjLT46V8ewZdon+tGWEef0JG4mLPVnOaaJPDfztnFa/LFl1/0Dwd2Ot8xpWfgfwcz1dHhQJWN",
-	"R+To8JGKRmJwOFAROT88VhE5PjxChemof0066D3qgn2CmYWk6EYsF1ZVPXsKPWaAJAqzF5/UMuqjySPj",
-	"Xk0Zidh3MCRTminMO3zFZYZmP8zHBMZNl7I/yFA1ElxcyQzMhxAmM4WExQhGXsmNzYFkwbagl9vC4UjE",
-	"uB9gzhRFltk0zNglV+Ui9MhTxPCSI4DvlrMaCXOwT0is80IkGB3uEgCI8ESA8wmyAXQEzQGkrt1aGIYA",
-	"ZxKuFbEMPQrkQ0ByJSzarDQhV2Ik/nBKgJGnRc4UQjMqNSYikrNZkZl3mspNNKumMJotfGQXrPJu0rF8",
-	"jCTLTX342bbGOsI6vfGvNSAwnwPCzdCP0IgeES7Awn+1FUZrDsYdIEBfokOh1rv1L2zvXcs76Pt3ckUW",
-	"VKzrdzKq5eOoEtAIA0x1QKS3jdL93pw8YBDmDhhUUgcMPnLqALxP26zFLOcA8NDKzzjyoQsiLUnjp5QC",
-	"dy8WPcv5VDuJw0beuwsNRXzAh2XFjBozN5tT5bz3VRoapa77LPMO2rbppQI0wH7jGjC3ZAsRSXO6QtdZ",
-	"KeuAlDIMZQcbTItGWGRlEMzBCJ528wXKRJhTx4pCuM4eEeRaA9EDbwUDm3bGbCV6xB1CdH1mePd5gzBi",
-	"xBUY9S7mt7VE/Cce+IkH/v+YB/IFnbGH6mr2m+tFVmWADbETDdUdDGn4xMbuo5x0SXoRpgO0OyJIxe6Y",
-	"K5m+WVLkXK+BKk4YzVn+tNDzg+EfvzfnyHZYvw9nQQx2gXWvgyJlAeSjUyrjqtsLUisWQjWErb3ATDRh",
-	"W+6ioQc+ADcaLqqCJu2abDZ6Jq5YriCjls1vHtTprgaoh+2F6dA3G/3DU1edB4waQU3rav5Itmp6uYQg",
-	"VZMfRR5oEOB+PN9MyrxJlV6se22jm+a6m1GJSypzndTLtfjW3yUNDWPOZUgcbHMYetGC56RM70yWMuMJ",
-	"Z+GyuqSHDa2+OUOrVvi4NWs1sAN+xQRTPhET/LlgOueJmxZXJJWJj4urhMLhtn7//v8LAAD//w==",
+	"7L1fcxtJtif2VdKcnRDQUwRBiuo/ZEzEqilpRnfULQ0pdd/1oAeVqEoAeVnIhCqrCGJacqzjvuy++sUR",
+	"ft213+9GOCYcfmu/7/0Mnk/iOOdkZmUVCiBAkeqea03EtAigKv/n+fs75/y4l+jZXCuhCrN38uPeVPBU",
+	"5PjnuSjy5eNxIXL4lAqT5HJeSK32TvYuRKJValih2YLLgo3EWOeC5fCKVJPeXrSXi7elzEW6d1LkpYj2",
+	"TDIVMw5NzaSSs3K2d9KP9orlXOyd7ElViInI996/fx/tzXnOZ6Kwwzgr8yvx/MnqGF5PBUvgxweGyRS6",
+	"lPD1nBfTvWhP8Rk2nG4cyr/LxXjvZO9XB9UqHNCv5uDNm+dP9mA8z1Mxm+tCqGT5B7FcHchjlmRSqGI/",
+	"mWojFLsUS9bhDN5n0jDOJlqnLJlqmYguK6a8YDN+KeAXWDAp0oGCIQpTMMPH4pQZIVgxFUzPRc6hlweG",
+	"BX32BsrNlvarmm8w1n0YbG3d+fULoSbFdO/k8OjLCPbBf4ZVLwqRQ5t//tPj/f+R7/+lv/9Vb3iy/8OP",
+	"h9Hh0Zfv/92e3y5T5FJNaHGUKfJyJlTRvkPS/85kKlQhx1LkEeOGzbUpRMoWspgyWRiWl8qs28Wqk9vu",
+	"5nPfOQ77vFTrzlReqvs9Ue/hfTPXygg84V/z9Jy2Hz4lWhV2Nfl8nskED8DBPNejTMx+808GBvrjlj2+",
+	"oreo0/pUv+HZWOczkTKzVAW/jtgi12rCYIuZzhlnVzwrBdNlYWRK55GaPWEz9+5A/cPFy28jxhkdCbaY",
+	"ilwwzlQ5G4mcjUSm1cREjCtWqkulF4qNpchSeMWeOKbzgcq5mgh2JXXGC4G/vi1FvmSeFtC9SbUwTOmC",
+	"wdIs4R68j/bOtBpnMvmoq4cHRRhd5gnQH1PwQrCxzkcSqCL+SBe6w4lIsVxcSbEQKeNZLni6jBgfKPoJ",
+	"roAuC8bZWBYRkgV6Ge8GLjyfCbg/7m4jjTGFzDIm1QCmP5kWXbsez3AYqVAfe0EKfSkUy3hyaZi4gu0z",
+	"iZ4Llkm86VKx+HrfXZ19/M3EvT2kInASePY0z3X+MYftOmYCeu4xmMZIp0tm+NIwrbIlGyB3qh4a7DGu",
+	"0tomA7F4H+19q4tnulTpx153oEypP47VJRHX0hQ4sld8mWmevtb6Bc8n4mMPEFdUXCdC2NthRH4l8geG",
+	"JVqN5aTMRcoyOZM02guRX8lEvFH8isuMj7KPPuCUF3zEjWAJV7CSI9hrnkxFypReRH4OMhHA4s20LAog",
+	"f6leqAgJWmeMNHSRywKZvjTICrlK7OwNtJjaMzYSCS+NQD7o+5ZmoICwcpWOlsTzm+LZvpfP2iZrnz4I",
+	"JDmc72utv+FqaZmO+VnIxAPjb08OtFMapq9EjitgT8JdTfeN4mUx1bn8i/ioV/MbaYxUk6hil5FngjoH",
+	"hqAvRcpGgufA32BVGpP+/vvv9x+XxRREl4QXYlVgib/Gt2NiFVyxGGlUzHhR5HJUFoJ1zp+dsc+/eNTv",
+	"bhbLm7IdLd0814kwBi7hU1XIYvkxV/B7kWX7VkqRal4WJAWMcsEvUXwuM8H0OLyOp3YFTIxk0TC4tgOl",
+	"x2OhUriiKH5UFLzMhGWbb5Qp53OdFyL9RqSSv8b1+NgiBV6JB4adUa/7MAq4HECFtGqoBYwniZgXpocy",
+	"re0DhvAYvwdi8xyWDceephLe4dmrHBooJEifY54Z0RxJ9TYrprkwU52l5hRXEseQiXEBciErUI2BIQk1",
+	"kUqgmjLmZVawjpmSsJdlxPq1wgdnopjqFI/iPBjHj3sjnlwOE54lw0wvhoXORA4jGM5JsBPXSVYaeSW+",
+	"cdojnV84HbzYO9lLdQmMIgI1hx447PejNmWTZFPY8qrPmVTDOTdmOM55Qsvw48a2t27548xkqmfaJCLl",
+	"ppCJLJZDns2nN57Gx/jQ+4gkHNj0Hd8DWW+ox8Ox3PXNGVcpL3Teok+fTQVIkAvQptmYy6zM6V86alci",
+	"T2VSnNJVKKYiN4yD0pFeSaPzJepthZiZm8aC/XwLWh2O5/o5vXRYrS/Pcw46dKnk21LY32G37AREtvOs",
+	"r4e5ud+jAEc5E1ciM1bpp0cfhe8drVpe6MV8aN6WPCdG+QHnX5dFJkU+TLS+NMP03ibr+jFFiQq+ZfH3",
+	"0ldeKrPjfl+JXI4tx1ilBPVj/+7XT96B1h28QsIfz1PWeX723cHZ2XddNuNLBrSV8QkHiRIkpoFSeiZB",
+	"Q0GdvceeWCp81I8YB0mIvblgT189Zhff7395/Dn7Bqkw+7Lf7z8ZqIRncmQ5Stg9XbGMj3SOV/WBseSb",
+	"GVEYFNX0wlqj7mHF3/tv9OifRFLAglas6ZXOZLLckbM9Ra3UMzXgS2OdJyJyfMtUHGtnFrU61Q9nOLsw",
+	"li3eXs8mtni5hUls8VYri9jivRqD2J2e1yh4C7neagQ1Yr3NGzXSeysKuw0l3eGtBl3c4s06ldvihV1o",
+	"HMi4ROeyTC9ECrevneIZ1kkDIraefKEoeeMw34eaz5/CjWocjbYDu/berL+O0UZisZkQNM9J/SSu3sPa",
+	"nrVv/eoxCi/Yxj38oY0Ku+PRdIQYOVHYEOgOuMDtu+N5QL/3KOQBvX6/f9hyxh4rni1J/91I7ev0miz2",
+	"2/sFUNArbrTiwzPNA4Vd2fdbV6xMZfH0yumR28+hYg4N1RgU4QU3LNVKREz0Jj0W56XqJbnghUjjiMVo",
+	"Xe6NZVH7zOfzXF+F3+QChinSuLfq4olgBLrFBQiE1uneZPhF3ZxDQ+3tNKgoL8R+IWei7dlUFFxm7fRj",
+	"zvNCJmXGcxMxqZKsRL2eOwt7jqYlbrTqtXqswm3jcJ9ogtGev36297X7+EJPdtxFceUcrFtxsuC0rLCy",
+	"xgxsy21jPeMlDM+sOTxkwDZAYaVBgwiZGU6sVQHvsBMyAzutJcsDleSyELnkbJzrGZuXo0yaqUjZpJQp",
+	"vNwiPvIkyUUqCyQ00UDlYlJm8CP2b4XLi5ev0LLA5rlIRCqwKdpcNlqia4hncGVTNhe50WqgvP85E9wI",
+	"6x91K71yumZSOV1vVVBAKWLH7YUtLAtisfWVfgaPs8VUkPUjgcZZosssZdau7N7F1VIsBl4g0hg2A/vC",
+	"lYnpSMbkllhMl8HRHmmdCa7q12ZlzmhTbb9QgTiMRwFGBIwHbYqnTJVZ1pzBlMNRUegoXHCyTrmJtFN8",
+	"aIUs+aQXbJb3msdVgJof2I+sAx3N6jSiVCTOS+kNBGgcWEi0q+MZDywEq4u3DbeoiZi0U8FqB42RK6Z1",
+	"Krnwlke6dUVlNUv0TOB1aqWgBu4NSCBr9hEBBO4Z2JqZ4AbvLKqF4VZ+8Ia1879qhO7E+WWKqltSlz3s",
+	"Um0ku9W6t6Ev8ABYVhTQrjlqiCcsrqQ94Hkk7sXRQMWBqAe/NKU8+M4LakCnpFbwnRfNsJFcwC9XYuhE",
+	"1yGZ4CMWe0kN3xJGpiXPhiCtwRdWJDPYykwrXWglE/glzeW4iHss+JZ1/JoBEbQHpsvsJqBpzPmTCw2E",
+	"Bc5NUmRL5hshDwus0kLnl8A00e3ecx2ix8ntEuMFk2oiTHGCryix8HAbk+l5xRvoWnKFp/niiTfIo8+6",
+	"gn/Ar5zkuAeGHfXZTJuCAYlXxUA5qYT6MFHl+/5emGLC85SRmIIXx7COEWKg4t89fc0Org4Pilyo1MTd",
+	"Hnteu+qsVJkwJiQdmTRovGDcDJRf1MjeRXjZ27fxqoxBpgDhRrHDPmuMc6DQyRq5fqiBaqs6SNTp21yQ",
+	"d4E1CGbXWlAUiMCtukldK2nRR0KNwh5UUAsCFWLNKQ3VCXwqOKOV1oAjcacIbiocl+CiWhIV7V3vwyz2",
+	"r3iOzheYDl7db6R64aZEX7h54acXPLl8OX6GU8Mvfr86P/z+a55cntXmiF+fX/h50mc72Qs716d2qvjj",
+	"82C+9mma9DnNGb97WU2cxhvMHr94QktA8BM4wmQ/a6NPzjaXhA+C6EoEy18JUB5uUJcO+8H/bjBXnoHI",
+	"htJTC7tY6H0jUzjG/inS1+D24om44pmJWL/3CMhJv/fVV1/dqMp99dVXNWXuUfuoilxnL4A5mB2tdxdT",
+	"sZjyHKVRaIQcxYZ1nl+8ZF98+UV//6jrmJyH1Iy4EZlUotfC09pUreFUTqZbmj7sG5lebPkC7r/Y8uEF",
+	"z5VUk10G5F7ZdkQNLm6HV2+nMZDarKPaorVybtqq8zJr5d0VcQdxqOM/ioLxrBexs0yqHjubilmPHX3B",
+	"OodffXnYZcdfPeyesPhw/8jEA5RDCas2EkutUvbTvxwBH+rYcXdP4dGHJkbnpX/mIbt4csriI2iEFQsN",
+	"rE8ZkZRAOdxjnpFhi3jeTll8vn9M77DglQiaHyg+0leC/Qafd15mFEQRDLdgf/tP/8sR9Xy8f2hiNtZl",
+	"zlZ7Hijf9WHY9WH/OmaFULVXrG8Vn0awnmXBwJXrzAWWbC/ag+XYi/aO6BNMZy/ag/HAb/3rLUk7bOoh",
+	"tQB/PXR/Hfnvzo/dX8eH/jloH05GmZs2w8LLOX9bCnYplkYUwGaNzlkHrvHnx2VeXe05UA41QftfAG19",
+	"dHi0FbR1uP/Db/5dm5SNgONdPeaMrCwkFfTY905dygWHQZq6zmcf5nDIM5D+Ei3GY5lIUDZAAKwzaROT",
+	"EpjoK55LkG1j9HiK2bxYRiT50Y02ZIRRAlqHbvA5IHsRi61ehKplPAZ1MrLtosMVlcuBAuUSj0yTOBKZ",
+	"GPKiVaux0y0V6oPu6TrL2GTx4ZWFb+W3JDBkbNTO3HPwDs5pN99Bm98g3JnViT9XbKZTke2LtyXZr3We",
+	"ivyEAcfhOfvTqB+x0eEPkf1iqHM5kYr9Cb97W/IUpIHEPRex0dEPNf/1dm4Ka8142Db89ULAWQvrh00c",
+	"kaSewmenmHqRYCtrO/Trjmpbv+43NuNFLq9dx+FaR8z89N86//j//p//8ft/7P7tf/6/f/q/IpbrhQGx",
+	"KXiO1ru2ZHe2dpsXlsysm6+Dhfdy42+8Spkp9E43Ix2v9uBEVpaKSS6EgRUc50KkehYxBTyGzQMTQuCC",
+	"IqDO8ErkplVcxaiKwB9MzxNZ8aohzA2hymR2xucPDnv9Xr/dhGydw9Tfpmv41D/4PtobZ3xi2kxqSWEY",
+	"HyEAiQZiweFkAlLaWYC2RoI8k8WzjE/a7v9U8CspTEEq2U0NoZJzMeU5Gohkul1EQBQGOLQa77xPsb4U",
+	"T6QppEoKur/GqRRj0iM2xdlY88yNK2PldLgNqD2321Pxp2EuruT6Q2W1b/dQ+/0A3l4b+mErUAVI7k0j",
+	"/wYfeh/tqbbrY7lytWCsg4cUVCKthFPQS4X6+Y2LOdeylT8Q3sCjOKw0ELnp6py5XiM2yXU5FykbLS05",
+	"lor4qJEVZ9ke3ARL+wqG1Xaqa07oJuZSTqYoyoRUFjhBIXJQZHEwnZJ0WevCrXG37i0twGiMumle5/jQ",
+	"+8BUYdIN9NEvfSqupPUwd5YH193ICc3//b8s2G+ZYgucNzMJz8RtJ4A+ihtnQE/Z5+EuDDWSeJ5lL8d7",
+	"J3/ahmT80JRAX+XC4E4pxhXzBNfftyi4cJI8h7mwx5AMzuT7H25PtBpCakuUoFt8emANm0c/4srZ/lDm",
+	"bQpelNvdkgt6NHD/1qfx5uzNNyzRlVpVmWxqJh1vwFkhkE7eGW5Fub6zT3sKZtnZje/Zx95He3SYhwlX",
+	"qQThYi1p8k88MMwkOhfW8BrzstCkdhCynI3lNRBobBj9rZm8FKyDOgicOrKHwhIF4sCal7tbkzGiRmdu",
+	"lG20zM1Vqyuh2m1wv9cL2zlBRfGSp1Z8UXDSMmlArtHMlDP4R7mQ1jigM+3CjZ/V9nf4e//K6kV+7eLs",
+	"BCthTB00ICjBbHQp2qTt9tAtRsg4sqlwNEM0gROFv9NR2b6TqdZGGCT/xVSYSteNGM+MrlyGlvPTGeAK",
+	"jSGnjI+QXllvVHUQraY8EnQe08as/HTvfF7BULm5JMaGnf9F5Ho45SrN7CavHi54pE4MDIV42DBPthC5",
+	"YJdiXlhnea7TMoFrJNVYKlkIdz5PSat366IE47k24mYoA8WlEgH30tqqbBbVg2md2m1pn5OtwlPdvvpt",
+	"NMaJ7G13srmMDc16lZvUdMg6u0edqO7egA680yRQer1o5i0CXvJ1AkdFXz3XiGrmjpqyF1gjVpSpVvsn",
+	"hq+rZ9q6g3eB/qzx1880+dPwkKIetL0yOeJGtgJCltaZTgKCCZCxUrGFzlPTSvxuZZpxBrabOXM5m/F8",
+	"SSrkXObCrNe3JWhB/IooUiJAjK5u9APDrJ+C8Ylo+Ai0EmsXcI3MF6hm3BTDED63PV36LnyrnTRlHJ36",
+	"NYQkL4C0OPbEi7ju12/zdKzY+XEH3GmICAYVrHDbtIK9XnvOX0izK77t1gdoB9te4yg1BQglrothssYa",
+	"TVZqJ/nBo2xeHSGrQ8Bq4de9m49M21bAHoSj2GatSbfbzUz9UokVZbRKwJBKPlHaFDIxp4wHHxEY5o+Y",
+	"LBoRxqyjNJmDdA6sPNe6QLFgxJPL/cAlbR8gb2gfH3FuaVIRNoWFlZgZoNWKGYjgMCnsl/is13luqdEl",
+	"Td/uVqZPRNhKCvZtf+nGjp1ZoB1dRHrbLZv2hqxWM1POJ7cds4cY4F62A8AP+/2f/tppbCraK2tL3T2o",
+	"fby1Pk4yw63nQ9Lblvse4K2HYc/tCQeyJXMvGArexxduOVOSt9YZc5qmDlR/Tlmf7rM7ancBA6Oz1bw3",
+	"wVL6ofpDHGzTmjUMDubK7YpWCETrOQwu1FqCeuEtBk1bEiJPMcVHjz2ugFDoR5tTWPGQbD/xqcchI4AT",
+	"KF0vcL/WnwbOa+FEOGxCYW+Lq6nG/IpaPXeNBj89rtoPvj33XfnJW/a4Kzi95hS8A09fzauyXXtjLjOR",
+	"DiuH3ypOvTI9UWgpuQsk+WPn3JgQXadzjx6r2ylWem4KEndm79/N1n6XxvIbopNuppm7WhBvb6RbtbLd",
+	"0kxmtfotTQgfT+0O9dsWFbV+7jeorG0U74nMynZbmfuFjTEuAjMtSVA0MYxUKqvsso6HM/7WkkPC4Pw/",
+	"/ytLbRPdU3ZIPIaMPb1bx4luAXd7GvoYd5CJbzKc91qgEDYg5oNCXDa7jJxwThgS6zKzPMzUqNIO5Hq9",
+	"5JcLSmwh2uIW1/D46p22A7biceJqIoYUl4OxWTcp1tWjLT/V/CZbJfELZxC+HxiIbI+NsQbxQe1XyR+8",
+	"7TSyNVuyfYxaba9W9Tt3cizHww4idrg/4oYScaz4FE9tsq62N5vXt3YpN/tpW4/NxgUMsuDtsITVRdrK",
+	"GtDYrpof6ZGd0/rooOYx3s7S81pcFy0WHrK6CULh28D+XKpLxgs20sWUCZWaUwfxTyuLeqYXwhCifion",
+	"U/jbIgB4LuyrXqqv3aW7Ga9znyMIreqosePNi9W29w550QINBf5jYR68CfIwIcqDxSnaFJQFaQyJicYn",
+	"BA2lc4w5bNhMY/QNV2zKs3EVvljwzDmAbWBBHfcRd09ZPBaLob98ZjjW+dAcxScsPjwwfz4ibwy6bMjp",
+	"NVDUMw57yo0NJPCLh8OomSgxUKXqIa5DN1snCXJA27C2VCLs8j+xTSN85XvXsP3xmVic++af6fziCNWG",
+	"3wueFdMd72ol8LlZ6Us6IOlyyyFTvy//sOeGcE4vN0+f7art0AX0tA2ubwNbuQqiVyLn9I3sdkUOM5cz",
+	"w2dzwgwEMNTPj7dCof7QzLXajz5/+L4Vl1plWn2VCzj4t6aYgQa2Pdu5wRtB2XqsXmx9B6ACw4U4ZUov",
+	"mpxkOympjl/cqCVUT4JmgXuyPVeolvQC32ymBLqBMTTDir1478bRegwtpnJHgTWAbTpUZoWsCI1mhEKO",
+	"R7pUaRhRGrE40wuLKQb+EXuUcIv9ld5ut0Ouj0zY3gq5TQqRddEMOxqnMGDBBjE4KdbNr22DXvBC0HHY",
+	"LovabRDTdECQd7hoTYqbhhuB0XHyyrH+XS/Pre55GmiGm97yGuRWho+mCBukP96MlXIPturd1T2rWmzd",
+	"yAqWudtdez0N5QenkGU8n2CsLbTYJkSsXqPbOBKMG3B9TP/9vyxqIjqlOyCZAgM87QM8yxzO0P1+m1Qp",
+	"TVMujap1lW8T0/VEFCIhv6ZK2duS4zGxrk7y1EeE+W4irQxmlJ0XLE5yWciEZ0O0QMSswz3yorsp6Lmx",
+	"Ra6VZHNA3/OLl+zw8Mvjh/tHzL3jcmU7L2HRDPa7Hia3dUHVJneb4bi1iNjy1qNYl5Dj93oBfSwJ4OIW",
+	"Fx19i+kSVry3Jr+HsFFk7XkJwllZJZPRSzBMmh+s6m2zDWS6xZX4/Oz37I9HzA+Ozl/EHvYe/vTXf/3n",
+	"g4tbd/Z2bWdtJz5ih/0P6tDIyYy3i2v+ZPzrP+O9coeDrlQdlhVjO0NECYD4sGXsR/DW9irnBbz0Nb7T",
+	"DoX413+2eDglgMgRCq3bxJEFQQoYwbIOl9hZTGUypRbtHSHA8MWTbq9FcgBuA9u4ch+jdXRj9ZBvzHDw",
+	"Qk9ka/QwpTh5YFgGTyDZChQJp0U4FWKjBvGNdyvsJMa4hAo3Zq1p5uarRJAdUt9Ylv7+plimbTzxN8fo",
+	"YFi+Na+CDGZf2UFBsX2MllunSLKv1HtfQyaD5lYMxQ2cIAx/Iq9Ee1Mzfj3EqzDkEzGc6rINsP2tZ5X2",
+	"1qTawjzmMr8thmLHaA2b5GPVXm5dpzSyoVTDscPUrSom27vHbuMCChGRer4VfMm//dI+vyaBSuAwCrfm",
+	"JlymG0UD++hvXxRe4/Vr2X5MmvjH6sS3ETIiMrdAgpFdZXtKYanZTQmyXLPrx3pLI8ot6CKpkR9IFmtm",
+	"iRvM1XWSuR0nDg0pP6yK6xQP2u999ajXQqJutipvSYpAsMy0mli/Y+i0cBVVTMGXFVD1lClN4tMduBy/",
+	"/OLL4xvzLN+Krm2vJG8geO3psThCGUBJtWmAMB/fgmNxJcKkzPiSjUQYCuRMdT7bJh72bnuKrJ+JWNpr",
+	"004x2wijv16tl97tW6OSAsWwxWzJfstGffYbNjr86a/XpyyuBbfZ3+1PPoI7Hqj6e/Dv0U9/vf7pv1F6",
+	"ki+PP/98/6iR6odaRkh60MVetOfb3dIojnN64VoLPr10LeJ3f6yafR/tvcQyAm2g1++nmuXWO1HZwE/R",
+	"JO7PqKtktqRwD0wgF//7uGEH37bSWN0Q/u9Rjj08+qJdkH2FMvGuSONbYItSiZUv1pg/3a+3gSvBGszm",
+	"xZpEweMyy4ZrRaFMJ5frxpQ5PWLVa66bBvEbAE0rShCdpGpsrs3VSfkxBkt4IyaFdvUWksNc6Dmll9nO",
+	"1k+n56b52lbXj/R2ckNta4OLcmSZeXBRWjbebu7GkG18yOYnXOg8bXb06PN6R/1om8PiaBbSVlPsuXBX",
+	"rD74lu9bJCMCJVJgnKYg6vJDuzZihZbjTRJMW+WFHU6lX4DWPfxAJ9rfp2dqkz8qXJEK+Xw7v+LdBApt",
+	"ymBG7q56ApPSrIMxr9oGUADdHqpIz98KsEiv7o5OpOS8tzkp5/hmmw1lDXiyLShl2HCxWKRibSGak2vo",
+	"n24GN8SzrAx855u4yV5fDxAhdQIEm7QOdFxJdIvyMSW6rUJarM3GGdThm4V2aSRqWTVZJ+azkZyUujRD",
+	"eD++bV6E0CO3xclekzYlxvRjQxxbHLEY85RVH8V1kfM5ld/EvKf4dKYpx6n79BZ+UmKC+Hr8W+PcQDup",
+	"Wq5Pe6A6NlNaGB3bumQTeSVqLosTNG0NVJA9sxuxuFTWbTt0HvC4N1AXmFjHeVTt2asE1ITn+RJHjFuL",
+	"/u+BipUuhs4ID9sQIwKIxURt6UDG3ZtSSrdDwVcek4HLf6Mm6J4L3hlWqPBWH0yFBlhww/So4FL5IPd4",
+	"LEWWibw9hH0muBruGO7ifIptVkSs/arHzMOSgkhoTqEc6c1pXhqZSldt4yBxXMsZtG9qqSZa8RCuEo67",
+	"TkEUKFxxYQps6i7CYGTaEgPTnnj1CgNcXNy0X9TmngRUYPVEbKapVmzYjab+PaEANvv+XcW91bieZ2fs",
+	"q+NHXzBbyY+Rd8aseobXOT+pBgN6n7B0sk1ZLH1Shgh5BikS7Ymx1mROeaYRas8zaQsfRrb6XksZQ5sN",
+	"fksRAaf6DF5uJVuqilpcW52QzTllaWoBZuMDVqzaVN4w/sd9K3bvPwd+U2j2ttSFTZVPtJ6qOjzq99cm",
+	"Q28L14J+fv/69StGD2Dilhpy+VEtS+1xvzWhUyGLtoSlF1OdF8xQsJSjMu78QCutQy1sJcmma+/N+XNn",
+	"T1k6bEnYmKPdZa5OkGddCjEX+Yl95sSekNiS0vWaY+PW4K9ujkFEyQb3ZO3ggMq91QV57fLcS1e0s7c2",
+	"FKINjAnvN478CePsHy5efste0UvA9TSlLdTpMmLxQSaVMAeDst9/mCj8R9hPic7Kmf0qHii4m2cX36EU",
+	"F9MT0v56Yl/nM2EfZ1TP19cjJ4Fg8zq7eW1c2XOX9WoH0Mz3odQUVaHOFhduF8RBw8lTgaWL1T5mKqnK",
+	"ynE2yri6DBOhBcHdhcCc6N2GbJzbiqSUaqB+FD4EEnjnML/W9UYWK8yuwTMznbbV3wWOvY9VnmM6SPiF",
+	"VtkyZoupzEieDWo6M1/SGUu35yLRGH3RwUYM48osRM4e9R/aTExB5eO4YT+uOreyA3a8g80YFuN7+777",
+	"/BKbqAJNzDpazlMn4BnWmerCzct0WcYn+7aMVGHrXIMcPtGs0A7OhfVk+C1S21k0erWRNYvI58ebkoGF",
+	"K7ftQvmONiPNyRWx5sxhXZqLor2G8zzX5PXlWXhoSAOtOXBO4XxBW6SpaAQBF1Qp3BUmAJmAoiMqWBHZ",
+	"Z13SkAp3espiOGRTkaXxQDV0X5RjKFA4si1ErFRjWRAIS+fMlHORG5FayBcfqK267blpuFAaX9hGJtP6",
+	"EQ/WhkK77eT3oj038q23EXt8VWvQfnketmu/+943jzvYOHO7EQ+phqXZ4LqjK4LXA/ZT6UW7Ay7jk6ER",
+	"iVbpGpfpmOe22sRITKVNPz7PJcgrEeM+EBozlmDoaB1BZeuTr0n1v7E6qo8xWg0akgWbiIIsKTjTTqmw",
+	"nj6seATUoipNgpp9hAzIU8qIcnTx7hqpE/dmtetX2nqMpWL7+44G7yOhLPPMMs7DmnRo4za2jWpzfUdu",
+	"i9uvf6VZrwbsBSVSXARex/ppnaXFaq7EqhOd54Qr6+5SLaIer7e/+tvKjp6H+lkzJ0Kl2Lukbx+UrtQv",
+	"0W7WbRxkmd2ust4Ga/UuDr2Et17toBgfZnQnw3uPp7XCe5g0wn8OiWeM0gR976OS2803W4DLb4YZ72gP",
+	"v5QqDRmq9e1ZdUIMkynIptvTZr+LZ76h4EvknGeuSVAZYOl0adAQvQO4pcaJ16QDhN8sz7KC7xi3whZW",
+	"bEmvdUO0MnE6P9Ltx+cs6HZf/LZKVXx+3Jree8f8C3goh2uMlUa83UxTUWMQIj1lUsHqYKJDkFkpnhhL",
+	"E9ZI1Ppxb+eXgBHZbGV4/tzlay7yyvkIg7v9iobzD3I4bHR+1G7aGlpfZsUzIdKPkAhtx7KSIa1sS3XO",
+	"zXCm8zWQyo1Z0l5xY0C6iI3E6hQ2KWgtXxrCtl2Q2eZ9tvNqJkXzA7zBn3Tu8zDvGOpjUVKpSGzO5LlP",
+	"DpGIpmSMzu90Q3qI9WDgoFIp4oLvoF5qIrfJr08r88Q9vUFs+7aWUrAOLt4tw50fW3AJb0ip0BhmiD4g",
+	"LcenS9qav0CDj/3L9PncNvG++uI2SIC7WPwPjcsPsgQU2hWp80hJCs61Ttqq/Etv/V617kqZie+kzqo0",
+	"lztQN0tU1xgTLNxcqiudXYEyCdxFtiYG34avrWRtoI1eU53VEavD/SPDbM2oiMHR9j+FpQfbNbPcFri6",
+	"AQjia2HVaoRuvkDYtJ9EUDCzWtT27VI7VzHKSwVkvCpRcgf5vm6F/NimuoorNrRrQZVbhGzMtSlEytak",
+	"d98xH+l5qajGVMtJdTNYA3cpgBnBO7UFcKNTYaq5fyJKm5irrat5qWfY+z9cvPwWa3XZz2cX3yGNvG16",
+	"s+09gpWHe9d3dkiIptfCXj+A5+2O6zovA0BXi8ESDfTbN+dqLdwIa9wtT1ktp5hfOX9O14eGhHOoFieq",
+	"8t1uluBK5fTAj5lOeNU4Q/xzLnKX/2N7i8aGW77tTWqFFWy9gFvVsbuDzCD3nO9vV+Dc5kQBK4n01qze",
+	"bYOCbsEgPya1DInfprd8bMCHUDYf7tS06G0kd6uXEDTuZXgJ0ceBkM+tr6Ojjy1jerQbhNbTzg2UsprQ",
+	"2uPlsZ33TN12RZGGuLdWWXoHC9OKIGtNLFviQisWeXeW3XRt4svDdax/CzDcGgtaDeG0S2mjmzl4W+qT",
+	"YHYbl/NW2Ww+5ZKhVazdj131K4tNdXhTkfoi+pWqTin2F3ethm0E599QwrwVN1l3Fk/4FZVexPwSBKFF",
+	"VOOtYc+3ideqq3btipqlXh9Ubc3bLFZhpiwBFdKXVFtPb16vYtA/KNnulqRqDTz8NfqJHWaU4VOgCMev",
+	"Xl68ZgdXhwckeB78KNP3B9WThooII5DaAas71bFoKXvcRcfWCux6oPA1W280F+MgNwe5GE9Z3EC+etjA",
+	"8pYA7TYTMFzsB4bJFP3llDUc0eljIVLMDmiY3NavcUeA7ztHbG9WkevgjHvxat0FX7xjd9cK3Pw2mXdC",
+	"5+cN5itaFOtv1DkjmA+suINnYCvbG7buoHxhRBgcFtd+Wi1JbrMH+vALzCAo1ZZlynb2u9Wl61Di2Q4x",
+	"vwsWv3n9QnR+3cnYuCYtu79b6oxQtPh7VA023a/WOMSdtAHq3dxOMd9Vh22mfry3oMuLRBM43CMTS2VO",
+	"KkwnLs0JnHJv+zmpqoekM6m2NO9iR+elMg7vSV9QB+fUPn6F5hfji4ngd4+pIxhvlaerlX/+6z87MkMJ",
+	"zjrnR12bx4+9ePmE/bbKpoYk5MXLP7LfVvnOBipGlNPQpPEJNnPxpPKaurTTha8ihXDmDsZ3FVNtxED5",
+	"Ms4eFT1GBHNM4GibPRmbNwd/+0//G+VK9NArjkXFB8pCqVcg05EbFEav+WqocgaCm7Ho6I54W/Js4JDp",
+	"QXIxh7Jb2CrL3dN6hdGT5gvRQFWrwMMc7UAa7QhOXVFOFKFsJo/uCavWMgB35qXCsMZmtmlgQZgfm2Bm",
+	"FbBLZLCuK+tXx2lC/3vRnusQMwDUnm/UcNzy0PrT9pjar774Gnq6SGvfvcAuKdtn/RdXEPoidadY8aLM",
+	"xe6hpoVQxXDGi2QqzHpAJ+1iovP0ARZVzIUqvAPHFDLLcA9cbvBpu1PRdWem/OjR5y3hKL9/vH/06HPW",
+	"mYrrrg9640orzAKJcRL+8sBg0LknJ4qkio0wglUz5dZy1vocFDOu5FgAm2xViV7lwHxJyI4Y8HN0xb55",
+	"fUYWPw2zAukHRXNCGU3LGVeI6aTMkFiraaoXZp23zjZbR4PXyjFZqDEKEnIkM1ksW7MYzGm46xN1bJSf",
+	"YT+Gaw1H+KsLHFqVVXEPW+XLN6/PtpcYfTtDXNt2ko4VuikyrHCwr4yPHhhy0f9lU/3MVT1MzsQQXmmd",
+	"10IW0zTnC55t0j3cU2on20D1Vqt1oD2ysNqGcMsin3aidgSqsxXu0Ooqh6uwcsmjFSLTvDatYoQjaLdI",
+	"n2LcuztIgp5+3mSsDBrfOO4Ph95sDxHaOZPKViSjlUJsmYJlY/2bepKY/k0alj+aru9q/K074BzHd5jr",
+	"4xbJrjfVJroPI3qlYt5Us9BsXLaPZktfWdQbkEbBw+HyflTD+ocuMuLdVlFbuRCsENdFEF2N2f8Swlex",
+	"ZMpznhQi9ynCCz6KWCaVNeKBMJHwPJd8ApJRUeaqkbbsqL+ajinMW/bnweC639+H/34J//ka/nMG/3kK",
+	"Xx4+Gwyuv3j2w29a05e91pfitviGWxjFtxfc1goyBpTAHdgDKrUtFgKEVK2RMkSSi6LHLqZ6oRiqUXBW",
+	"TpksQKS1JmSMOkSfyZamJuoxctkC7URuzEWGW3Q7nuQWcTsHQ3jnWoCdmjKp84ItQGcojaigaaco5ypn",
+	"pSYPgpXPeJnKghU5lxm6IfRCifZEf7MA6zYSmcbSRPqExZR42kZCI1NxodA6Z3Hl/F6Nle4NlM0TetJI",
+	"IViD1j0wVGuHIqvjyvARg+YM4+GZVoIUUApkwyFZOCs9Io0pySCP6mgzodqdneS7y1hWP4mthy8X6i75",
+	"8YgbAcTvxgSt0O/X7uFbQjdvKG2a+SIRWyBlbUUJoEy6aFe3OYa7Xwoxh6M/kyoNaidKwwqYE+twFgSS",
+	"MrcgkQMeg25AhcbQr7Zj3VefFGCrBX7ln65VgdzqOFIDrnDdCnXNS5W0V0l/nZeictkupEr1gk1FlgYl",
+	"0Q6jfr/vVoSy52dU8E1nqTCFfQArPcAat9ssrhxCfBfAUAgsvxH+0F5ItdqEoKSjP/n+4NUGGC6ZO2M3",
+	"WKHrd+QDQPAfBGgHgf6WHirVnnHUtBwaMoBX2SJScSXJVdRRWLP9cF1mCH/DblvAQmQU4ro+25XrwV9h",
+	"LEACnGEL0QDXDycNCxIi6cO+1+7/q/DCW3MrdJZpNBSswwr4I8q4pUtjnWV6YULctmsE3VAgvDYMp/W6",
+	"wJne1pRaH/iF7aX+7fOgz/ovgf105acLP5r6Dy80GVsDovUR0JS7BrIKoPjtRLNmzC0zd8j8G1RXXxoH",
+	"ehn7cBKXNyGkpjNJybnxYbMmw7ZUw5Bbrz5wOwhte+kgxHy43Xpgp7EpD6ISwEltVoexLCK46v6g3hbo",
+	"s3tmzDqPac85ZFzUk3/WhRcFe7Y1fLQRurORQYWO7Jrf2lWM8QlDKjBydQrrZ6A21zZ6hMc4vBxliT2H",
+	"ymp//yu+P368/+yHH798vx9+PN7l4+FRezbuN62wg8cMgQfopUp06pNZzSYHL+KIxaX990/z+eyHZtbw",
+	"h0eblO//Yf9/+uHHw+jhmvF8x3PJVSJ8ovddMithyh0q6EquvivbGhuXirBRjbJa7OLJCbsEwTOe64XI",
+	"42igTOe6y37Lkv5Pf53x6851xK6HM6m6f04OKUIaP1JGlBnPspqrkWBSA1WzlZzaLmymeJPGrNNa2qgb",
+	"ds9+w5LDn/56TcpRQxrpb1tG53DLB11OgM2810Vu9/ew6bZD/V1FERpJFTBu0RZ4UEs2A8mk0PmScpk4",
+	"0mSj9tZC0EJ+O+fGZTDfkpPa0b2iF+2nZ/g+jd3ncNiV3+3C5m5hY71nROU23LbKFNeCzB6PRS5UIobz",
+	"tr3/9RMECvR/+mtnrEuVogRqcQDdA/vHLVkQNnhT6mC0PY14crltquCKRtxyWLun47iBgfqT+Qd4fqPZ",
+	"HfWl9p0AFvvu10/eMQ7Sq0jZaFmtwwNjKyTXSlttcTrhIq6rauCypLnx3GIt7wxzWIXtrkiLNskVLt0D",
+	"44AYLNEzYSwkeCujZSBBWGp5s/3cHeLGYq3cq3Bn/aL7ixlEF+8MXwvP18eL3rMQKZ9wplVhnAGzcBmh",
+	"7ZMNAOZIYC4R4KYEHGjJdhXoy1cNMr/txVvZ8FpDq9O5wRyxcqdXWaZUspA8i1nn+dl3BL5OtCqkKqWa",
+	"xKxzBt+iAGHpXDiikFPahqyHmt7fnmX6Jp/7ZmoHJmiyMa9buLRvc5DCaW9voanv7Q2aQb2LHbb2ltGI",
+	"GwtPO6tOWHp6p8Lsm0JGvrX4vEYGbnIQsH7k/RQeiwyKwi2rdR2uSXLW3yCj3ppRflQH6jZk33KINY4s",
+	"qqV1xlUqU5cpa4cTlF5JI9aESuDwhYMeJlOtzbrsGGSX29iMSz/ranisNjLj1xZNSKjH4ZoC2a+3KdHN",
+	"tApLe8P5S4Wt75C41QoFPRuTBXpEpUTcxv6qC9GeJZFXHVP416Wcz0mbITaNSRJPmcDCn7qYinwhTXvK",
+	"aVPOhnxkhu0FxN/9+vzpO7cqINHuJzxLSiz+4AmDWRFz20Z3y1W4TSW5xt0IC74F0117TvwpjPyxtrux",
+	"/t7YAdbX74XgptgnG6yxx8n0WHx4cP3nfu9RzP72H/8P+LT881HsThtmb3eOqdGS8YFCYwGJG81IDLQg",
+	"WutC53E2EzLlTBSMZ72I/UNvoM6muZ7xQk/yHvuaffHFMesc9ftHXXZ0+KjbcwYMNzbo8PDAdK67P/03",
+	"gkXzgVq1awRGi+s/J4eueDxPcm0M3RXDCs0yPengp4G6eNL1EYzwdW0a3cgm/YL5+lr1eqHYxZNTm6WU",
+	"D1R1rPTYERP0POHBI5Cnt43YG2td3qRoPDADFa8UGew14c2+CH6DYhHeOzjclMU/sMyYcobo65HRWYk5",
+	"LzNKy0np++1FGqi1N4nxmUaHpDZYcpFibJSuEaCZzsVAoSduyrNxG9Hqsae4HKRwUkygwUL/fvgGs0rb",
+	"5RhWX8cRVUHxt9kqaWN5jYltTAVmrwO7FaEU7eGmv+znI/x36b9f2s/0vcF/ERe+nZDor9y31KX//Fxd",
+	"XbzNi39sfLfy+ajlpf/Q+G7l88pLtS8Qdv5DSA9eVjUsdwr9dWc1CBqwJzWyh9xX4JRZ1hb2S3qbr+2+",
+	"bTV1FIiCm9Dm/2u6x+ovRLWuN1LLWsXOu1uiU8ZtxYtMjAumy4IV/BJxH17NvtcFayDQBAaH+ICUViKl",
+	"hEgNpQ615LjQbCTWkbwOR39gjjOFO+neAomD3hxnfDIRaTcaKHyYRlEP12BxMOsTRm3TWiGzh4cfGHbx",
+	"ZKDQIMFcRd+HJ4wDZbZxMwtdNQnkFsSlVExyAWOGd4VI9Yx1YAO+esR+bSs4mTlXBqZAaCSkmrBbX/S7",
+	"HqBTCe2BrH7Ummp59aB5gPjtVKL7qaC4G3x3l1IdLWBe2/LqNUS/eVLmslheoEyNMx4Jnov8cVlMW2wD",
+	"8LXO5V+QX5+wr/FZ0tISxFc5RBdDIJQ5qcG0Ioxd8gFqWCmsFqKG1cDSmVTxKTNC2Bo2mFpGavXAsPh6",
+	"3812nwBRNqyIlAKQ/3FIlYg7LYr53vv36Cod69UpBXVSKH+CqSXYLhWy64yPdG4dB4HlwzPsCIQfM1C8",
+	"9vNKMqiI3A5AhrwYFMolrCoSDvJeJpMlRsszI9BzY3WeiERAbCpi80wXmE77SuQmDMo3ePNshnYTsT8+",
+	"dglLoUmuaqC/gRqozz4jcYE2ycXK84Jkr95nn7GqNDkIY3AVyiJISkGSkS3VIFKWwLbnkrsoYdCtLPU1",
+	"DGMriHrMy1EmzVSkbFLKlCOMk6Lq/LrT4sDcCmsboPDnCchOQAUVSSVWTLl4+Qqp2EDNc5EILDB46i16",
+	"QGrdWqCw+bbkGeXXsJBBW4LAmvx67ClPpgNlKyyoNEx94CXvXMwFLwzphFKx2JlrYlzdX/2KnWl1BRq/",
+	"Vmag9ineitgUpQmA9TGKX4phgr2+lu7b82dn7OHDh1+xTkza0wnz5pYYCDyDHt+8PmOgDpTFvCx6rDIv",
+	"4CGm9CAwPAyKzAV78+b5E0aUxPRgRFSKjX4cSyULwZ4/ffp0/4tHx4yUNdOjYVuILRXJ+5Z/iwHpCt9Z",
+	"nsJwLDSOQtaCGjHSFKzDrf8Nf6w53NyZioDvsbqyCatdIe9yrYsuJicF7TF2ygNnBmatRIYzsmSfEdEz",
+	"NlGEq1tAq29YJ27jCSdU3ByrqDDmrC6+KVikJNOgaHOQQbIsYoYiOAtSA2D9EorKQfcj9gZtoboAdzqH",
+	"0aY2sA8PTqoToj1+zYhgjcQpSzIJjIeZKSwZNEShgXKiNO4YTqaYiiVLNb4Ls4wYZllmoGTkzKYIMYyn",
+	"qX2Dth5PIKiXnvyZyBEuE9mLZSKn2CFZokBlWAk8gdV5O2GHIIR8fsweX5w9f84yURQiNxFL5QSuKWYD",
+	"6AG9H8J/TuA/+3FEU+JUywsVK25fhfOF77IOsV0WV8c77vbYGyUxaQFi9Ql9Aa0F2H6e+zwh7kICP4NG",
+	"bP0RnBOylYEiUhgfXB3GLNegxpGAtgMPfGwxxxg6IFAmGigXNUv9nMBA3tEH9g7luXdsknPY5XcD9W5/",
+	"f9//Hx4M2Sl7F+4Ve4d5PYllYfQjbrfdosjW34Ef4U5F9HCt+kqlfnaen313gHZ+22nItdk79uL5NxeI",
+	"45m48pzvqH3i5p4nBbwoatTZjJy/EzUYIWygtM2XrWAlEmG7r8sI7B1wMlPw8bi1W+JuFWsDZcDmN/ZI",
+	"q1Nmw75D65UNea0Z3e0ISChh71itVDVMG0V5JKnQfekYEI0Ctx/bGKinNVmGZdIUxNDpIBAFgOaJ3ZLS",
+	"jSW14LoOVIvoc8K4PWFTnaGl6LPPgMxoJT77zNoDZmg1gWYLkfbcTLBCKgxBpExcg+IiC7Kg5EhEQT7B",
+	"1ELGkzR42jH9TBTAnYBDv5wL9fjVc+YkSZdX2qH3ub1C1cyBYldC5gn70w/xQHVcOw97fXITG3spaKHQ",
+	"wAO34yW8dISrC688fwJMVYmksHZhA8T6sQPPRWzGM2CYVIqIaD6egit9KVIfE8CO+4enxLKk+9ZyGhDq",
+	"7ErRgPDphz0WH0wFz4rpX4B2HWCBKPpzJopcJsamPDnQc6H4XPaWfJbFA4Wyh9K2k07sFg4XousI01O0",
+	"FDkqREVKYSMVWylD2Ylxq+jAHthvf/NPBtOwEK0cqNgW5ANK2VIsMibLVGzlkLbakSfAJGwtvZFOLTMD",
+	"8QlG9PlX/cONdfZEb4JcND7wN+7g6KCeNYZ14sHeYC+GmSLsfKozer97Sr2fXXzHEpFl0O3WlfsiFqvY",
+	"ZuwecWDX8+nSYMQ7AoI7KGoyNhU8FbjM+PVh10HQbEdfHDhRL7bDqQC6MJ6bSgK65t6WIl+eoNoNY5vz",
+	"YnoiU2J+MQ3i5HkqZnNdCJUs9/8glpipgTwNVk6aSQPyrbImgHDpsSESuKVx1v+c+KotuBEf2KP2jbse",
+	"zCxVwa8jW5oUtCfL44nbBrBI4KPH/f4pHR4iXNIMFEhA+7a1UekqOIKkVmbepwJSj0wE64D+YbNzBuZF",
+	"J/QMFNw5kD/8taUnIkxqgbm+ZLVG7FIsURY8PjoCvvuo3yf1BejGQA0IHa14RldpsEfkeSqAt7kapPGp",
+	"dVuAgDiBgdgTbCW1TMMR/lYjtYfOrEBN6DJf7VSampThVSoSHp0sUC9oChJxuHxaCRRjPVIGBT+k2peI",
+	"nEWlN5OJsOm8KIhsD2TXXIqC58ugKmmo5BKK1NgUlr1+r2/TvAKN2jvZe9jr9x4SHnSK9gBH5eDviWgD",
+	"bmIBQsOO+v2gGN0814kwBolWJq9Ej32L4pOjfD2fH1pq9TzdO9n7nSh+b7tq+EKP+v0gmQZacAKK90/W",
+	"bkIH9SZbDXVBFoHGPHCYsBqPqL+2Zvy4KAOb4hlS6poxZe/kTz+gi2kG23Cy90JeCawBF+0VmEvvT9XM",
+	"DZUHdDxj7SK/yjWcf1EaimQV13NXWIf0web6ntIjWO4PmSeIt8B9ioXOLylKx+bsNazIS2MD4lb25Bs7",
+	"shv3BMZ1MM+4bOxG02C1svC2h/tY+mDZZn4eazch5NRrd+L1VDAnrHhdLaASC27YqJQg1aK9dItjb5vb",
+	"7di7Qe6w0OHQQc5yw4/Yf3j8zYv7WP/XoUa7aelJfNqSxliPlC+Syu2vzgZkWZb0mXQi9qj/cKAqF3hz",
+	"V1g806lAwePGgqwgEFYVWZlDz53YUoVow4GjkDo/DWprfpA4kk69SisrVSGzCmYDLRsgoTONphBi5gH7",
+	"HIAYIBOBrlpZGJGNsUYmVVeNA+2iVnY1YnLMuFpGKAVgpiiZs4xP1tz9c9qVeyTHQVHW1fOK3QMTxvW8",
+	"9fmEtx7e/NYFLe0bxa+4JDTCpqNdjXzDsfZpUNee7M8+Q0v5yWefNY3jK3qvzp36hoIF5V1jirw6Y5mD",
+	"vIT1bwhhGwfBJDEakaw4b0UfxUbLgYplGv7YY89khtaSRM9GIAajvPj42yenLAaChndEKou5IhWn0LHN",
+	"owbfRWykiynwm9oIeuwPYmkElveSyhpP5twYKy5Q/bWBmvOJeGBYHJTyirFUmPu78rdjMDgN97TxAlxT",
+	"RKNoVdUvhaZBOqSHYCJ6zt+W4hTlrbqhMhUUhKJz9LETmGfGU7sgSEpc5xHphP22W/RCmuLMlWDw+oLB",
+	"OH/glHuoDbiEAyf1aNXt7lCIInsftTdbxb3eXZs+3+XdNekjnbZrsha2tq7NoILDVo0GhSGal/UpzzMJ",
+	"t612sqPqPmB8WMsY4ObUBrANaHK1/xe8aOnd37x1vWMmvA/t+xWfCGbkX9b2ggptrSMf6fqoHzhyj2p+",
+	"3NaSuW0yV/1+W23SkQ262msG5usBbn2oDIo1P9wj38OTi0DlFr73UgmcEEZqIe1A3ne8De/7mqfO042v",
+	"HN78yhvFrUlbpPTSFtzymc5HMk0F+r2Pj766+Y3XWn/D1dKOzvxM3Nzz7zMKwpGgxC8DHm759Q/R3orB",
+	"lfJ4bZNhtc78MQf6PUgAVH0WbRBjWfTYc+JS3i2rVSKiil/aVOlwK1JCfdE3Q2sQoMzsGJCPRmCQbKml",
+	"NeIhVQxaYWttG1M9QkffZsm/3/u1TgeiIsm/8CvVP775jW918QyDeP5O7+BjV8QCjihobghusBgJ9GG5",
+	"JBz3fTsP0GG01R3dfCeduS8BSTylmsYW01T5t5yimpcqcslSUIC3TpXAe4UGtPlcKNJJN93ExziFX+R1",
+	"xKG90GutElTA99OV/AVcyeDoofsusUTe3UB7mdbdwB2unK9Sj8dtrs0HXTyKIDSMg0ZMo45YLiwo3TPB",
+	"Rqypx2LrXE4wAskBTLAcNbLKKrN1JhV5DZlE03zsmhnqcXxKmbd9Q56PuvhB9KYUfIngICt49Ni5Q03W",
+	"h+HTksMb/hNor5isyAGGLHa0IyzZwbYGCqMEMHYPNNvYY1Nj1rE+MIyoQj3CmpHRctC1BMgvj3UaxXMy",
+	"Dwzt4p9a05b16bsMB6V6YJxXZ6AmokDvD/n4HUZMFpF3vrjZPjAemsVzYgeYa4qbgTLlXORG4ORfugRT",
+	"PkM2klM6p1MuFUu4orR/GLDBOsf9r6KBQgdUbKNkzdC+bV1g55j8o3N8dBSR43OU4z9OTqqco55NQXun",
+	"Hsk2UFR+5/nZ79k3h33WOeofHXUjl/e4ArBdvHzlYnuB2HfRpRqjd2toty4+oTHQtiJaijihDQix+4i2",
+	"CyVcNIiveIMN2sNihgaN37BtSiziE8YLlgluKJbJBZcQKsseNp6hIZbamfHroftlOM45AjmomZk2BTt6",
+	"xH7t3XouOtANZaBY1SwctQxOaX0SbgiJLlWB9eDR72Wb6tpRSEXROWZ4KeZFOI0adDJ4MLYYJRhDx6Hk",
+	"jbyO3BZ1KQGcT49PPY10MR0iLHkoVGqGSojUppWGbcHJwHBrdw0WAO1d1ols6wC4Ez6Vkyl8thBvnud6",
+	"YQ2ziH/mBb0NHZ6iCQoasUgjGosdQYTINmDchQ1BdhCLxXRJifwnQomcI+wptm9VBi1c5G6b/ECU86mj",
+	"xh8oQSAb+1qnyzsTHvzIPMuvo54xaeKK8HL4cXSJMGkB+e6x/xc6WZeznhfTsK6/QTBr3GCOmOCmPsVo",
+	"k6vn35jg1N9CcDrTapzZBE/Hh1uM6RVfZpqnr7V+wfOJoPcebbMAppxTObVvRCr56yWl+Dw+OtrmZesJ",
+	"B1nrqSpksfx7FQ2fNiFzSOVQxML6CiR5BaWhncj4NrkLcXGe6aI3pwDL+zCk8JlAACE6G7AzczWJ7cxe",
+	"ffs7Jmd8IjYpYK8yXbz69nf3qYLhGA7sKrSYdEdScTJnbeMMxll+Urp+9psFByfQtiJGp+jejR7ulN/D",
+	"lbqowMReDPQBYjOeX4rUishWQ7Mzt8HNY4khGwM14iolhYFXZY7mXIkMs08vUGGhq+mxVZwwMoh+GijF",
+	"ZyhkUvs+EieI8oHWrZfoput98d1HuN7mavKb61uhOz5d6F/ohaZzc/8XugLcb2dTqSP7G3f4+UpIGdYR",
+	"m7NCs8M+Qixt/EcQy2YnjKoeoUx4pR0SkJluc3XLmSuhCOpQXH0fV9obaldO1+v22AoKs8deBYFvGJrT",
+	"jE7jaulCuFwdLQyexSKWvLDAd8PICQ2LYYnCaS0320Ch9mVQcSPSZCsXM8OXDg1KwU9Y402XhZGpLf1r",
+	"wwNFOlCkAeqcCBnjZO22AAVrFadQp7EsKHLWmsapH0S8DtRx/6v1Wl2wKL84va4a206KXf9eBmCrgK7x",
+	"xlob1twH1EQE/bKxZXkq8n9zZPeTDvZL9FqHAROGyjpSfG/AXkIusCWP2cBTLN+5AxP9NxpzW1vyhpG/",
+	"TcMysJbYhmtZhuRyY8dUN5xca2RDc+W8IlcHmRRSaEm0ljZhj7FptJFXFfQx7TORekSAUtJYMsLxypTW",
+	"OT468kRZK9Htscc1hkKp7DOtJiJfnRlixL46QTkWI4+lYWPMQTpQ51hTyIQuQgwSV3pBzNO0kXiquXoX",
+	"Xvi7J+40tp+JsK+12NGoRPqJWH8i1h/Bl9oMO71Xd2q9LOOOMIboBlWAYA2+C9bx1TGBEhpWaN2t/GO1",
+	"+pMnbB6WaR2oN6/PqBKoc5I0ioP6Sq6n+MQiqKrgMgZbKgGieFUaVzBX39YDdm3t2k243Itq2X6R0Il6",
+	"pc41en+195+0/5//3ldHqh1CQSUIt77za0S16IPlsceKYe2aXCuZVGfoJKydNpEgs2FaIUp8YhMLkVbN",
+	"eDFQok4begSLgP6crMa9UPbAVA+eOkmPZ/FAYbY5K/mZimSGMlGHG/bq5cVrZmVSQivQJc9tVjxrKED6",
+	"8cCwXGeCdbxIqHP2lu/bXnIbO0u/Rqu/qIFyA+xSSZYS6y5gAO6a+nKwJyL1hdN1jkEDBA3xgBeLNjAi",
+	"0Srdt634OT22MbhuqSPGWaaTS0ztOVCpRNaYMp6gT9cGpJ/a/DMixaoGePrgLVvrDx9tI4RwWH+ZIuRK",
+	"rd+P7PcNihbfQHU/iZOfxMmPw1Y+nJtskCBXMprfsU+IhMhazhkPlG0xIWMMWxGvk96+ayRH/wXKbitZ",
+	"6dcQktrCf5Lgfv6r9l17XqRWaW4DumFLR842klw9jeL6e8aeBymhoNmBWpPkyepMI14kU0p3AYJJ2FH3",
+	"1GdaGqgZd7B2ROm5CgBwS6cgG3Uag7LgSoyJriEERzy5tElDK8kOJDZMbuo3KY6Y0iDtZJhEr2sTe83m",
+	"mEVbFjaRST2DzIkPxx4oLP2DNU5csR9s4tdPbi4KxJ4XlELdoDtnoLB6zd/+839tQA6rdI29cJGHhc5E",
+	"zm0FlTgiAXGgnDPrp3856rNfu2KO7M0Fe/rqMbv4fv/L48/ZNwRQ/rLf7z8Js0nW9/F0FV1qkc0w+1ym",
+	"uEaRizQYqFryRPzaoVFd5MHjKkkJLq2rTUQRtM7QCbKlIe3BVc+qnS/E7jpJ3Ovr9dxfzMUvDhQv4PAS",
+	"fhaIvY2E57j8WP0wbBzFdQ/vPsWs6PY5grRitkZjE2e7XmzzLucmKQ1hu9FAYU46NBTnmvJjOpQn1Xwh",
+	"DDf6FTFWOOfKECDWHnNM+EILd9z/ilnQgasESV5Cl+mHbMBhxceBstdnqHQx9BbvbuSt5RUMGjNWqkCZ",
+	"cIirqpEQ41w10fAn2men3AzHsoi7PXZ8dHSCqd7DNbeZMMPdDGDj0Gft6ONaD4NziymxOIGt1zgpv6uX",
+	"tPllaSFtZVU+siLSVihpC0nChxnpsoCL/klL+aSl3L/odE4yAm/PLVmlltxSgvLSyM1AmCAZ5sGP1Yf3",
+	"TsexJPGe8KOBH5BSJ6YufVgDaeaynvGCOJ7DuAyU0ovuia/94CtVV3ysILQIEmR8l7rLfUDMQHWULrZh",
+	"FiRPwcOO2xAaj9KJ2JwXFHuIvtiIimTywtWWCeAoOKsFp0gUdG3aCjjGYXaYEWEUEU1sKNUQ03xiqlSF",
+	"BjpTJtMmxzPOxKizVGBEU4993yhLQe3P+DW1PeQTMZzqMrdZGAMBRhrbDlbOoAWknYioYjElb8aB9dhx",
+	"/9jlwV5SwXJMwqbQTSEVW+i83TfrQIPP1TNN9fF2Y2uVGL93c06P9YECuyTkWOUmM03poVz26VN0SBPC",
+	"aWSEKtalXODF7hkn7j0c3G3Fpqjwaus/aeE/OytZ3RW4qtweyztVwW9iIXcLrHxsWEyOjPX4zThatYlV",
+	"6zCmvEQrzCW2RCFeYS9wdbGqwkDFv3tKXW/JMUGJwCzAuPovnn9z4dPYIrAmuXTDS00rNPNb3Rw/+iyO",
+	"B8rH5RLIZr2OUNHDD4E0hlT1nvSFtoF+wjd+0h4+aQ/bkPw/lhxkkuUG2nenQEebrX0rnaAh8GeUjCvM",
+	"JEBiqktUPFoi4mWd/+Ib2/U9EgDqYpPnwc7/U36puwd/ZVlQM6N+VkKwrjuB687vLk6CUMRAOymcP5bY",
+	"zBj+pB722CttCsoFSUkGMBMAPExFN9RyoKo64GStB/WueeZd06Q5Xge/dI76h93TgRKYMi+vpo4JLaLA",
+	"xOqKE1awXt8I1VAdqCCJRzV0cc2TwuaDaIyrQogRHRkoN1BlhRMCChPoVhZYDRPRJLkwZL32deP0eKAC",
+	"Qz8VRwvyaVV1202YqNXb0s1UL3AKWYaZEHrssTUAVDV/SiXflrT2UoGAS0pt5/joaIPZ9BuXf/E+xBhq",
+	"/GcSXOzMWmgW6awJz5xxpbHzp36HMRMaGUuRut2lQXb9+OjaOVdM/mHpARwjiQNOdfAjHJt/a/kBPoli",
+	"v8BQE7w8nhpFlfctFHmo9OquzKwufdkzfQdCmLVSkpOOEviEaZri9TnuiZK2Jeid82JaWbbwn/uxuD1m",
+	"Zi4SOZZJQM4CGreF3S1IvlCNqMq8enj8xfGXDz8//uKGBKw//Cy0vZJHPxnffv7r/1K53bj9/bbQtB3v",
+	"NcHELGQ1Yh7v6gINWIfaRdGJUqylIhOFSLvrdK1XNJD7tLUgiHeTqkWD7n1SmzYeO1hBu1TbYxxvrSM5",
+	"ADdVGrRiOILdI8bZuMyyWvAK62A51CraAqX7bjRQuc5svSReQeQ7Njkvx8Jdj/OJVkcyZVNupliTZYNs",
+	"T8fpnmR7avxnAjPYma25JA6ovvdJYP0ksO7KseYgHyl3hnYnHzWudfAj0oH3B5b/bOf2aYinlr4kXAWR",
+	"wUA+mEQ0G/zp02HK3BWMrFcqDe5FZTaxPpbChrihVaWNnDyh0Xt6crOE60qI307EtbXQ71WE/LdBQv5/",
+	"IEPawwc80Z2/O7mSpcp0crnzjTzLBM+NjaZCJCQCQ2txU6IKcWvFdbzBrj9dp0/X6eNfJzp7H36brEts",
+	"dyBce0APWlmtOahK91zZ9wk67VMVE6AacyhFmOGZkr8jR1SCFbrgGbmcsTru27jbzJH/SmeZz+iNFf6r",
+	"IjCtpaOw/nnMOmQ8OamiDzC9dfd0oJrVoxjPFnxpmBEF6yCU1hZSxbossnAlam0pKWgW1ACEYEy5Gc50",
+	"LmKHHKP4daz6bee6ELlwyZZZome2PPNAPcOYAGDt9REZIYxdTyop4LwfWiXixDWLddgV1vCnrMuUZJvQ",
+	"bihfVLh1Y/tFaAeneaEyTZh61GZsXw4L6AdKtcV7vqw1PSYNlrorhHJdB93ZUv+cKrcWJxibgp6YgbKB",
+	"si6bGMag9Mh2H0cstt/3eJrGJyy2Rn1CthOQxyPfey74JFoPQLVPhr/GXYysbQVK+hf8T+EgMFC4CFOm",
+	"V7nMYehwyoc2Abx/OMRnakUlq1vNFufY0FPc3FVmc5saSafWgFgNBW6Ae3QsRLrOtIh3aPciSndaR+qw",
+	"HxaSOuzfWEnqh3stXQib80y0g/HDGk5/H9Ut/h5dFMRa4NjCOtejjGpJVuib22FE8nJr0F8VO7eaD1Xn",
+	"1lEO5K7j4/CioL6EpXSEzR5j6IZy8Je5QApFruNGOYsHvtJp4Alx/LSiwSeMs6P+IeVHMDU9MiDuGAlW",
+	"uqwGxE1IJaWS8aOycAFtNLKqKLn10+ucwsSAcwpKfR9hAQC/tUy8LXkWoTV3DPSbEvZ3CTQos8xCByNn",
+	"mrOieZixq54L8YTlfDFQKS94VXmjmOZ6oRhf8GWPPQ9L3rPO8fV1l3rxqICgHMRILLXNTmOryaIz/iTE",
+	"nGM2CERP2FpF8JFiD90+VYUxTp13H5bEJ6F19TsyPhIZ1vkBBUVj5tvOSqEEwyaa6uoHYZJ0WIqFtkUP",
+	"WKoRl2mmsGV8oGoRkqfuksi0Bj2Yi9yNClfhV7/6FQtq0A/UhQDRZqUsfaHZjF/CCAtMvWv4WFClTyqE",
+	"C1fDBUIMFKXIQEnA2LLJMxz+pZgTS/K1HY6OGeL3KVrPWkEfIJBCTUSOVlmU01zSn5OwEj4VVvKLD0Lg",
+	"nAPHpRxyQiXaB52zjtFsMZWFYGbOE4rVmwk49lZ2sis640Uh8u4pdTRQZxff1TpCPsYqJu3zG+V8wUY6",
+	"XbLRshCgVe6zCz4T7FIsI1fF1E8qIinXgy+BMqJzg87eZ5+5oikDxfyF+uwzKjtflLmq5nXUP2xUS8VR",
+	"oJDqEAgxiK3MBtOG23su5hlfYrd5KeJTprRNWIIrWqF769NxqKEinNMJ1uUPHwxKK9en6wmAVGycycm0",
+	"OLGFj7FrjDKBAcMe2CBgK2y6Fgo5E6jcuzK3Oc6E4mF1zrAszXH/K6wOQvOuF2OWoKlUhTPGUkkzRZFW",
+	"IppvH0NlbWdwli1xApICHTwCyuJfn+qMgmUuxdJfLTg6nRgrpifmKu4OFLDVAMxtsHx7XsCTPfY9jvKM",
+	"pJb918u5OGH+5ar0zkARxISNpchSY6N7na6zcjxjomMgYlcdxxHCnYLKwR3HMInSxK5sfMw6Gpkgz7qn",
+	"NtVv3BSnYhuLG3SLZHMknCDaOe73u95gigdUGvbm9bP9L1kH6COVWYGrs0/XccbzS4zSmSg4gF2KTzk+",
+	"/LI/UB079RlfQh9vS+2rP8WDvfiUvXgGW3R2/uIZy6QSWHil22MvpMJgbxgrHsiBSqY85wlGDhsW/yp2",
+	"SYVpe9DVAxTuUs7nIj1lo4yrS2zThD9Y+y0dcqoajP1a/ZE2rMfOdFbOlPGgUSrPpJZEgU5ged6xBB9i",
+	"75jbEfYuKLyjF/DRikDwYaDe7e/v1/4PrcSXUqUxe8eWwrB3qKNgCzF+wPdjRk/6YAL3sONr0gMZ1nyJ",
+	"ryNDql4mVld7lXRqeroeye/fcrH7tZ8j9rf//L+zfqMFRw2rlzGeq4qQcDV71v+A7dAiDCUuidJVLxXz",
+	"bMzUZSlYecH9wMY8KXQesUHZ7z8UrM869AiJYoddaAhIy8ugNBMw5VwveuzcSQLONWANllhMqEbhsfZP",
+	"FQMC99XuQihxEkwRL6KjkIIX9Ubq29F1wBpkI40egvXqWBGWmErVTaOHYMW6PXauF5bTSkOiADdVmSho",
+	"iSIQYH0wJojuQdgvcj97KQgno5Z4C1BEoAfx/W+tPFsaweIemodSkcgZz6iwWsS4Yo6uIRFWSKXiw94j",
+	"sf8w7lJaCgZ0rTRcpcZVZdJYhfxb/i0Q1OdqHFf5DeWlCH06VFMkF9SMXRHMBo5ZOaRCIcZymkRkWaM2",
+	"ORDZJVWhMzDJB4bBnfaUFU8Wva5cfmDYv7S0S5q6JSRSw9lMUhYFv4b0ewRiDsN1tHJ4xd5JMQDZx5Jc",
+	"G0/paJrFiwGxo7pY6PvCh477X31OshDtG+VOoJxouAkiZ/EBktIDvC+JomtjP9Hg6KuYjkf785h0gM4M",
+	"rjGVE4U1RimR1rHzt//8XymdvRezMQ7GEVYiWzqHjlxwDLzyqN+3Ijd9DjPid13JCmD0yNMIVWxLp0FT",
+	"R/1+BG+gxoIXmaqkkZhEOgcqLNZ+Jaz26FvUKlvasjta7RM1IcDnqS9GxpcoCY00Bb6iykSYOJKpUL9+",
+	"YLBRqnifB9BsaMIWw0PrLUZt2RzIjPsl7/V6sds3sgle4yqcDFQcxwP1KyvLUMcB1Z1PdaFRKtg/ZB3L",
+	"WldZaHeg4HhHTmsihbLODxzpjzxNiByFwXz9uJWRkvC8iF4cRv3eo6jf6x/2j6Jo4xP9r75sf+IoOuz1",
+	"4Ymj/qP2Jx5GR/TE8eEhPkGnx/0e4cuP+tH3+/3+8dGaBw4fPqQHHkZHdkHXYEbOy92zZwQS/x/Ecm/V",
+	"XAcnA0+aFwORZdjUi1YTxjCXNeY8jyG7C4jk5tEER6vi0OvGVT1872PzwepoVuFVRH8VWb02kLqSxHeP",
+	"qN4wRC+5w+g0MJ9GqoJ1A3LS/9aL9tK98P7eUo2XAZYp2nOKUb2B1YVAzg9fjkBjBhIJc55J9UKoSTEN",
+	"Dcph0Z2Ph5Q6L2/K9oKmDZvkxSWLyH1N+A7Im5ZW51abH6gVG05E3ij7kmUNvg6t3TDroghCGNpsBasL",
+	"HaPxgESyYiqN03tsbz5KRo/R3eSDhUi7rhsvQIHeJuphpHUmuMLDsF2gBYLaS1eGMS/Vv8kijJ8wa7/A",
+	"QlHaFHA97UUeg5DlL3PowSg3hbiGSXJanBd4mLfz9q93YDh64xzP3BkAT3DETui3yaAb5YDJ7Or9M/Rd",
+	"zT+di0RIzDNTJ2hrIjZuI+ucl+q+E37CsNbT6k8Yml9AWK7zB9DhvdMrdtfAGgulqVVXd/aV+u2xuIse",
+	"O6/KqA+Ur4AGqlLkmLDwVizjvWyr0fau+vlAuZyCaXxqUSTOJxiWt++xx63oCVdfn1qlbPKoUdpBuIiy",
+	"Wo34em1kn8BJZ5R7VJqwRHyApvD29fMQZTRQT0QOtKWZddRRmj+eRaEnosxqebzMQKUikUCyItbIV4Ll",
+	"4S2kyZcKH6jDXtDLojbEtQm5TljsJhWfDtRR2ESiyyxlNSdr4/GHzR59fknpMss33jgO37AeDFu7I8WU",
+	"omF2L2jRWp4wG1ijrUe9ME6tHXfjE8bWsphZQ4U9DZRTNfA90LjC3qJmhlB8vdZlx5clXE0AmgtyysDR",
+	"GfHkEu2aaOQK8ooO1Ofh4tRSm52wGCtIGVSfYPJfhM8GGdOsc4nboxKRX8knTaOpdU+wb3uGgF7VkHUe",
+	"OocHGVt3oCw9Zj6Pj6Ul8Xpmee4xEb9EnulGt7bGOv78iX3+AnLQ1xP5EuKzVHeKtbHljOgSfzjwxhKD",
+	"iv4gMQjNMbZmR4c3kmE7smEq457p9hhCHqVhbylXjbQ0TSWiyUfRUE6EQY9tkmHnLKssQp2Ku+uFooKk",
+	"Og/zbXhuUcEMrYXZ6tG+8lKAvi38zXnQhN0O1FpwENuMDYIVrZNoaVYEC1hTt9wOcEgcFms8Wbik9/c7",
+	"0R/TbiOrRVesTKZsXepy6wChFGi2144RIiCJTaEs7vaYOwt2wysIMSIaCiOyMbKIgl8KFBI9B6n4fqlu",
+	"hAnZ6rc2BzRsC7pILHoI+sLSsz6ltnWt2aNx6h1WTKY1TFCI0kFvARotQM4DnmiThjrmB9zOAoyn3ISN",
+	"WlbupkacmJaSZrfevmwX8IPYyD0UiqFR/UwBjTfzLy+P+DivvBLTHYzmU3q1T+am+9d+09SfxkIHhqe3",
+	"Lu9aMRWzXbj5Br3YdnTwo/fJvb9jzXhcgRKIXEaMJ7k2BuZF981ll7LZpyJUaVcUZ0yMuYl5+K4sI7VF",
+	"wFHrlWlVMIHGRdktHQOgvP8VWGGNlE5UbK2gvkpWXjz/5qI29RXG5oAPzpdTj0zzI7qbfCb3WgSxtjaf",
+	"1IRfOp1ZuaW8cVrvTGGocjHQhXV1SXl2FxWrv16i+GYrDOI8giqBgXfNV5/GiJtajUT0TQ9UVTvVFHxp",
+	"IoQx2ruKhVQp1081fpuIvFnCuoV4fG/fqQrWbROY+gH3/s0bkObuS5z73i/Bz5R+7sbCf1Xx208lAD/J",
+	"bx+RrrqrAdpccNnvphQgJZ/YOar+uTEllvXPuUr1zNZB7fhIjsOjL9lIFqZbiSUTeSUUBYcYRx5FkovC",
+	"0zw0CzhsgMqWpx6whtA8jNpBJAuQZxsBMlCYWQfrWqBnItMT0IPXa7SvYaj3lGQH2/6ZVFLs+wbsCG5T",
+	"VFmO7AaYKYJF1S+/AsInenP/9AbvNuN0WAJCY0nFlvkG6GmPQqBkbVvTl3NxpS8t+BVbOrVQ1Ao43D/s",
+	"Vr49m4fYpq7HfLsDFaCgnVUsx3ZTS69IZWvNoIPDdaTio8lVNdJwvLpatCyfUiX+IkpewVZ8+DXJhUrN",
+	"fZanMjZj65qSVPU8G4Gz+4pnpRgoPWaxP/9BZZHYZHouYovCHXEjwhAnLO2JvgpS/i6eYEuVwz12b8SV",
+	"77QaLilFKtWLqsOjfvcUA1uLXGcO1W8kVnL66V+O2MUT1lnwXEk1oaC1n/7lIX5Jro4u2kpAYRuoi6lY",
+	"THlesAT/23l+8ZJ98eUX/f0jO53vhSkmCGVCi//h/pGpGo/Y4f5DEw3U0f6Ridj5/rGJ2PH+IdmeDvvX",
+	"rEOO+C6aegUsJCdERrWwpg6SMAQ+QFBmWJ/rtFEzkqzHmfQWn4GKfQcnbMwzQ5W1rqTOyINCGcfRT+SK",
+	"UgY52AdKqiudoScGIw7HWJKL4joWemVzsBwWuRP8pp8MVEz7gZ4hVWaZLTRGXUpTLUKPPaZwCHaIkRDV",
+	"rAYKDvYpi4u8VAkl2nC5VFR4ItCPj4lVOornGO9TuLUAhoBnEq8Vsww9CuRDBMUmIlqtpaoXaqD+eMaQ",
+	"kadlLgyh3GpVVCOWi0mZwTttBVXbrXw4mjV8ZBNC/W4SDn+MMmJtffjZbg0bx3V65V9rAbM/RbAw0I/Q",
+	"HxkxqdBZerU2IgEOxh2A6V+Qb7bRu3XVru+90HfQ9+/1gs24WjbvZNRIbVQnoBHF6hcBkV43Svd7ex6W",
+	"ozANy1EtC8vRR87CQvdpneNN5BKxcoXxM458FJhKK9L4KTvLPWT/y+W4cBKHTWLiLjSWqUY4gBUzGswc",
+	"NqfOeQOxyqKj76bkG0ldB/NMFz1zNbkn8Qt7qWG2qN+4EeNQsYWIkYXRIgXs8qCUchLKDjYvAfmziJVh",
+	"XJxgdNrhC5KJKD2ZFYVonT240rWGogfdCoHuwUw4QzVCuDFRSQa8+7xFGAFxBUe9ifm9ynRx8d3vPvHA",
+	"TzzwEw8MeKCc8Yk4MFeT31zPsjoDbAlDa6lfCqThExu7+yRjIeklxCPS7ogRFbtjrgR9i6TMZbFEqjgS",
+	"PBf547KY7p386Qc4R7bD5n14HqSzKBUqlUEZ/gA916mUcdPtBcVDSmVaIoCfUVKvsC130QjMFODEgYua",
+	"oEm7JquNPldXIjeYnNBW8IPxOitdLbY7bC8s+Lfa6B8fu/rTaNQInKb1Cili0fZyheas55GLPGYrgFB6",
+	"vplUKehqvVikwko337UiGqMK4lmljWoWJPatv01aGqaqYlgay1bp8KKFzFlVwIzNdSYTKcJldWU9Wlp9",
+	"9dwmJe+F5BvNWi25HdH/5BdM10FvIhNJkWslk6CCQri55L1q4TLySihhfKo8/HMmilwmrn1pWKoTH7lc",
+	"C1am0/LD+/8vAAD//w==",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
