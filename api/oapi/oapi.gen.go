@@ -2151,6 +2151,9 @@ type ServerInterface interface {
 	// CreatePredictions Concentrations of unknowns
 	// (POST /v1/curves/{id}/predictions)
 	CreatePredictions(ctx echo.Context, id CurveID) error
+	// GetCurveRecordPDF The printable calibration record
+	// (GET /v1/curves/{id}/record.pdf)
+	GetCurveRecordPDF(ctx echo.Context, id CurveID) error
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
 	ReviewCurve(ctx echo.Context, id CurveID) error
@@ -2436,6 +2439,22 @@ func (w *ServerInterfaceWrapper) CreatePredictions(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.CreatePredictions(ctx, id)
+	return err
+}
+
+// GetCurveRecordPDF converts echo context to params.
+func (w *ServerInterfaceWrapper) GetCurveRecordPDF(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetCurveRecordPDF(ctx, id)
 	return err
 }
 
@@ -3034,6 +3053,7 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.POST(options.BaseURL+"/v1/people/:login/unlock", wrapper.UnlockPerson, options.OperationMiddlewares["unlockPerson"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id/signatures", wrapper.ListCurveSignatures, options.OperationMiddlewares["listCurveSignatures"]...)
 	router.POST(options.BaseURL+"/v1/curves/:id/signatures", wrapper.SignCurve, options.OperationMiddlewares["signCurve"]...)
+	router.GET(options.BaseURL+"/v1/curves/:id/record.pdf", wrapper.GetCurveRecordPDF, options.OperationMiddlewares["getCurveRecordPDF"]...)
 	router.POST(options.BaseURL+"/v1/signatures/:id/withdrawal", wrapper.WithdrawSignature, options.OperationMiddlewares["withdrawSignature"]...)
 
 }
@@ -4330,6 +4350,149 @@ type CreatePredictions503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response CreatePredictions503ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDFRequestObject struct {
+	ID CurveID `json:"id"`
+}
+
+type GetCurveRecordPDFResponseObject interface {
+	VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error
+}
+
+type GetCurveRecordPDF200ApplicationPdfResponse struct {
+	Body          io.Reader
+	ContentLength int64
+}
+
+func (response GetCurveRecordPDF200ApplicationPdfResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	w.Header().Set("Content-Type", "application/pdf")
+	if response.ContentLength != 0 {
+		w.Header().Set("Content-Length", fmt.Sprint(response.ContentLength))
+	}
+	w.WriteHeader(200)
+
+	if closer, ok := response.Body.(io.ReadCloser); ok {
+		defer closer.Close()
+	}
+	_, err := io.Copy(w, response.Body)
+	return err
+}
+
+type GetCurveRecordPDF400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF400ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDF401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF401ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDF403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF403ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDF404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF404ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDF429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF429ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDF500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF500ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDF503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF503ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -8306,6 +8469,9 @@ type StrictServerInterface interface {
 	// CreatePredictions Concentrations of unknowns
 	// (POST /v1/curves/{id}/predictions)
 	CreatePredictions(ctx context.Context, request CreatePredictionsRequestObject) (CreatePredictionsResponseObject, error)
+	// GetCurveRecordPDF The printable calibration record
+	// (GET /v1/curves/{id}/record.pdf)
+	GetCurveRecordPDF(ctx context.Context, request GetCurveRecordPDFRequestObject) (GetCurveRecordPDFResponseObject, error)
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
 	ReviewCurve(ctx context.Context, request ReviewCurveRequestObject) (ReviewCurveResponseObject, error)
@@ -8702,6 +8868,31 @@ func (sh *strictHandler) CreatePredictions(ctx echo.Context, id CurveID) error {
 		return err
 	} else if validResponse, ok := response.(CreatePredictionsResponseObject); ok {
 		return validResponse.VisitCreatePredictionsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetCurveRecordPDF operation middleware
+func (sh *strictHandler) GetCurveRecordPDF(ctx echo.Context, id CurveID) error {
+	var request GetCurveRecordPDFRequestObject
+
+	request.ID = id
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetCurveRecordPDF(ctx.Request().Context(), request.(GetCurveRecordPDFRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetCurveRecordPDF")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetCurveRecordPDFResponseObject); ok {
+		return validResponse.VisitGetCurveRecordPDFResponse(ctx.Response())
 	} else if response != nil {
 		return fmt.Errorf("unexpected response type: %T", response)
 	}
@@ -9565,397 +9756,401 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L1fcxtJtif2VdKcnRDQUwRBiuo/ZEzEqilpRnfULQ0pdd/1oAeVqEoAeVnIhCqrCGJacqzjvuy++sUR",
-	"ft213+9GOCYcfmu/7/0Mnk/iOOdkZmUVCiBAkeqea03EtAigKv/n+fs75/y4l+jZXCuhCrN38uPeVPBU",
-	"5PjnuSjy5eNxIXL4lAqT5HJeSK32TvYuRKJValih2YLLgo3EWOeC5fCKVJPeXrSXi7elzEW6d1LkpYj2",
-	"TDIVMw5NzaSSs3K2d9KP9orlXOyd7ElViInI996/fx/tzXnOZ6Kwwzgr8yvx/MnqGF5PBUvgxweGyRS6",
-	"lPD1nBfTvWhP8Rk2nG4cyr/LxXjvZO9XB9UqHNCv5uDNm+dP9mA8z1Mxm+tCqGT5B7FcHchjlmRSqGI/",
-	"mWojFLsUS9bhDN5n0jDOJlqnLJlqmYguK6a8YDN+KeAXWDAp0oGCIQpTMMPH4pQZIVgxFUzPRc6hlweG",
-	"BX32BsrNlvarmm8w1n0YbG3d+fULoSbFdO/k8OjLCPbBf4ZVLwqRQ5t//tPj/f+R7/+lv/9Vb3iy/8OP",
-	"h9Hh0Zfv/92e3y5T5FJNaHGUKfJyJlTRvkPS/85kKlQhx1LkEeOGzbUpRMoWspgyWRiWl8qs28Wqk9vu",
-	"5nPfOQ77vFTrzlReqvs9Ue/hfTPXygg84V/z9Jy2Hz4lWhV2Nfl8nskED8DBPNejTMx+808GBvrjlj2+",
-	"oreo0/pUv+HZWOczkTKzVAW/jtgi12rCYIuZzhlnVzwrBdNlYWRK55GaPWEz9+5A/cPFy28jxhkdCbaY",
-	"ilwwzlQ5G4mcjUSm1cREjCtWqkulF4qNpchSeMWeOKbzgcq5mgh2JXXGC4G/vi1FvmSeFtC9SbUwTOmC",
-	"wdIs4R68j/bOtBpnMvmoq4cHRRhd5gnQH1PwQrCxzkcSqCL+SBe6w4lIsVxcSbEQKeNZLni6jBgfKPoJ",
-	"roAuC8bZWBYRkgV6Ge8GLjyfCbg/7m4jjTGFzDIm1QCmP5kWXbsez3AYqVAfe0EKfSkUy3hyaZi4gu0z",
-	"iZ4Llkm86VKx+HrfXZ19/M3EvT2kInASePY0z3X+MYftOmYCeu4xmMZIp0tm+NIwrbIlGyB3qh4a7DGu",
-	"0tomA7F4H+19q4tnulTpx153oEypP47VJRHX0hQ4sld8mWmevtb6Bc8n4mMPEFdUXCdC2NthRH4l8geG",
-	"JVqN5aTMRcoyOZM02guRX8lEvFH8isuMj7KPPuCUF3zEjWAJV7CSI9hrnkxFypReRH4OMhHA4s20LAog",
-	"f6leqAgJWmeMNHSRywKZvjTICrlK7OwNtJjaMzYSCS+NQD7o+5ZmoICwcpWOlsTzm+LZvpfP2iZrnz4I",
-	"JDmc72utv+FqaZmO+VnIxAPjb08OtFMapq9EjitgT8JdTfeN4mUx1bn8i/ioV/MbaYxUk6hil5FngjoH",
-	"hqAvRcpGgufA32BVGpP+/vvv9x+XxRREl4QXYlVgib/Gt2NiFVyxGGlUzHhR5HJUFoJ1zp+dsc+/eNTv",
-	"bhbLm7IdLd0814kwBi7hU1XIYvkxV/B7kWX7VkqRal4WJAWMcsEvUXwuM8H0OLyOp3YFTIxk0TC4tgOl",
-	"x2OhUriiKH5UFLzMhGWbb5Qp53OdFyL9RqSSv8b1+NgiBV6JB4adUa/7MAq4HECFtGqoBYwniZgXpocy",
-	"re0DhvAYvwdi8xyWDceephLe4dmrHBooJEifY54Z0RxJ9TYrprkwU52l5hRXEseQiXEBciErUI2BIQk1",
-	"kUqgmjLmZVawjpmSsJdlxPq1wgdnopjqFI/iPBjHj3sjnlwOE54lw0wvhoXORA4jGM5JsBPXSVYaeSW+",
-	"cdojnV84HbzYO9lLdQmMIgI1hx447PejNmWTZFPY8qrPmVTDOTdmOM55Qsvw48a2t27548xkqmfaJCLl",
-	"ppCJLJZDns2nN57Gx/jQ+4gkHNj0Hd8DWW+ox8Ox3PXNGVcpL3Teok+fTQVIkAvQptmYy6zM6V86alci",
-	"T2VSnNJVKKYiN4yD0pFeSaPzJepthZiZm8aC/XwLWh2O5/o5vXRYrS/Pcw46dKnk21LY32G37AREtvOs",
-	"r4e5ud+jAEc5E1ciM1bpp0cfhe8drVpe6MV8aN6WPCdG+QHnX5dFJkU+TLS+NMP03ibr+jFFiQq+ZfH3",
-	"0ldeKrPjfl+JXI4tx1ilBPVj/+7XT96B1h28QsIfz1PWeX723cHZ2XddNuNLBrSV8QkHiRIkpoFSeiZB",
-	"Q0GdvceeWCp81I8YB0mIvblgT189Zhff7395/Dn7Bqkw+7Lf7z8ZqIRncmQ5Stg9XbGMj3SOV/WBseSb",
-	"GVEYFNX0wlqj7mHF3/tv9OifRFLAglas6ZXOZLLckbM9Ra3UMzXgS2OdJyJyfMtUHGtnFrU61Q9nOLsw",
-	"li3eXs8mtni5hUls8VYri9jivRqD2J2e1yh4C7neagQ1Yr3NGzXSeysKuw0l3eGtBl3c4s06ldvihV1o",
-	"HMi4ROeyTC9ECrevneIZ1kkDIraefKEoeeMw34eaz5/CjWocjbYDu/berL+O0UZisZkQNM9J/SSu3sPa",
-	"nrVv/eoxCi/Yxj38oY0Ku+PRdIQYOVHYEOgOuMDtu+N5QL/3KOQBvX6/f9hyxh4rni1J/91I7ev0miz2",
-	"2/sFUNArbrTiwzPNA4Vd2fdbV6xMZfH0yumR28+hYg4N1RgU4QU3LNVKREz0Jj0W56XqJbnghUjjiMVo",
-	"Xe6NZVH7zOfzXF+F3+QChinSuLfq4olgBLrFBQiE1uneZPhF3ZxDQ+3tNKgoL8R+IWei7dlUFFxm7fRj",
-	"zvNCJmXGcxMxqZKsRL2eOwt7jqYlbrTqtXqswm3jcJ9ogtGev36297X7+EJPdtxFceUcrFtxsuC0rLCy",
-	"xgxsy21jPeMlDM+sOTxkwDZAYaVBgwiZGU6sVQHvsBMyAzutJcsDleSyELnkbJzrGZuXo0yaqUjZpJQp",
-	"vNwiPvIkyUUqCyQ00UDlYlJm8CP2b4XLi5ev0LLA5rlIRCqwKdpcNlqia4hncGVTNhe50WqgvP85E9wI",
-	"6x91K71yumZSOV1vVVBAKWLH7YUtLAtisfWVfgaPs8VUkPUjgcZZosssZdau7N7F1VIsBl4g0hg2A/vC",
-	"lYnpSMbkllhMl8HRHmmdCa7q12ZlzmhTbb9QgTiMRwFGBIwHbYqnTJVZ1pzBlMNRUegoXHCyTrmJtFN8",
-	"aIUs+aQXbJb3msdVgJof2I+sAx3N6jSiVCTOS+kNBGgcWEi0q+MZDywEq4u3DbeoiZi0U8FqB42RK6Z1",
-	"Krnwlke6dUVlNUv0TOB1aqWgBu4NSCBr9hEBBO4Z2JqZ4AbvLKqF4VZ+8Ia1879qhO7E+WWKqltSlz3s",
-	"Um0ku9W6t6Ev8ABYVhTQrjlqiCcsrqQ94Hkk7sXRQMWBqAe/NKU8+M4LakCnpFbwnRfNsJFcwC9XYuhE",
-	"1yGZ4CMWe0kN3xJGpiXPhiCtwRdWJDPYykwrXWglE/glzeW4iHss+JZ1/JoBEbQHpsvsJqBpzPmTCw2E",
-	"Bc5NUmRL5hshDwus0kLnl8A00e3ecx2ix8ntEuMFk2oiTHGCryix8HAbk+l5xRvoWnKFp/niiTfIo8+6",
-	"gn/Ar5zkuAeGHfXZTJuCAYlXxUA5qYT6MFHl+/5emGLC85SRmIIXx7COEWKg4t89fc0Org4Pilyo1MTd",
-	"Hnteu+qsVJkwJiQdmTRovGDcDJRf1MjeRXjZ27fxqoxBpgDhRrHDPmuMc6DQyRq5fqiBaqs6SNTp21yQ",
-	"d4E1CGbXWlAUiMCtukldK2nRR0KNwh5UUAsCFWLNKQ3VCXwqOKOV1oAjcacIbiocl+CiWhIV7V3vwyz2",
-	"r3iOzheYDl7db6R64aZEX7h54acXPLl8OX6GU8Mvfr86P/z+a55cntXmiF+fX/h50mc72Qs716d2qvjj",
-	"82C+9mma9DnNGb97WU2cxhvMHr94QktA8BM4wmQ/a6NPzjaXhA+C6EoEy18JUB5uUJcO+8H/bjBXnoHI",
-	"htJTC7tY6H0jUzjG/inS1+D24om44pmJWL/3CMhJv/fVV1/dqMp99dVXNWXuUfuoilxnL4A5mB2tdxdT",
-	"sZjyHKVRaIQcxYZ1nl+8ZF98+UV//6jrmJyH1Iy4EZlUotfC09pUreFUTqZbmj7sG5lebPkC7r/Y8uEF",
-	"z5VUk10G5F7ZdkQNLm6HV2+nMZDarKPaorVybtqq8zJr5d0VcQdxqOM/ioLxrBexs0yqHjubilmPHX3B",
-	"OodffXnYZcdfPeyesPhw/8jEA5RDCas2EkutUvbTvxwBH+rYcXdP4dGHJkbnpX/mIbt4csriI2iEFQsN",
-	"rE8ZkZRAOdxjnpFhi3jeTll8vn9M77DglQiaHyg+0leC/Qafd15mFEQRDLdgf/tP/8sR9Xy8f2hiNtZl",
-	"zlZ7Hijf9WHY9WH/OmaFULVXrG8Vn0awnmXBwJXrzAWWbC/ag+XYi/aO6BNMZy/ag/HAb/3rLUk7bOoh",
-	"tQB/PXR/Hfnvzo/dX8eH/jloH05GmZs2w8LLOX9bCnYplkYUwGaNzlkHrvHnx2VeXe05UA41QftfAG19",
-	"dHi0FbR1uP/Db/5dm5SNgONdPeaMrCwkFfTY905dygWHQZq6zmcf5nDIM5D+Ei3GY5lIUDZAAKwzaROT",
-	"EpjoK55LkG1j9HiK2bxYRiT50Y02ZIRRAlqHbvA5IHsRi61ehKplPAZ1MrLtosMVlcuBAuUSj0yTOBKZ",
-	"GPKiVaux0y0V6oPu6TrL2GTx4ZWFb+W3JDBkbNTO3HPwDs5pN99Bm98g3JnViT9XbKZTke2LtyXZr3We",
-	"ivyEAcfhOfvTqB+x0eEPkf1iqHM5kYr9Cb97W/IUpIHEPRex0dEPNf/1dm4Ka8142Db89ULAWQvrh00c",
-	"kaSewmenmHqRYCtrO/Trjmpbv+43NuNFLq9dx+FaR8z89N86//j//p//8ft/7P7tf/6/f/q/IpbrhQGx",
-	"KXiO1ru2ZHe2dpsXlsysm6+Dhfdy42+8Spkp9E43Ix2v9uBEVpaKSS6EgRUc50KkehYxBTyGzQMTQuCC",
-	"IqDO8ErkplVcxaiKwB9MzxNZ8aohzA2hymR2xucPDnv9Xr/dhGydw9Tfpmv41D/4PtobZ3xi2kxqSWEY",
-	"HyEAiQZiweFkAlLaWYC2RoI8k8WzjE/a7v9U8CspTEEq2U0NoZJzMeU5Gohkul1EQBQGOLQa77xPsb4U",
-	"T6QppEoKur/GqRRj0iM2xdlY88yNK2PldLgNqD2321Pxp2EuruT6Q2W1b/dQ+/0A3l4b+mErUAVI7k0j",
-	"/wYfeh/tqbbrY7lytWCsg4cUVCKthFPQS4X6+Y2LOdeylT8Q3sCjOKw0ELnp6py5XiM2yXU5FykbLS05",
-	"lor4qJEVZ9ke3ARL+wqG1Xaqa07oJuZSTqYoyoRUFjhBIXJQZHEwnZJ0WevCrXG37i0twGiMumle5/jQ",
-	"+8BUYdIN9NEvfSqupPUwd5YH193ICc3//b8s2G+ZYgucNzMJz8RtJ4A+ihtnQE/Z5+EuDDWSeJ5lL8d7",
-	"J3/ahmT80JRAX+XC4E4pxhXzBNfftyi4cJI8h7mwx5AMzuT7H25PtBpCakuUoFt8emANm0c/4srZ/lDm",
-	"bQpelNvdkgt6NHD/1qfx5uzNNyzRlVpVmWxqJh1vwFkhkE7eGW5Fub6zT3sKZtnZje/Zx95He3SYhwlX",
-	"qQThYi1p8k88MMwkOhfW8BrzstCkdhCynI3lNRBobBj9rZm8FKyDOgicOrKHwhIF4sCal7tbkzGiRmdu",
-	"lG20zM1Vqyuh2m1wv9cL2zlBRfGSp1Z8UXDSMmlArtHMlDP4R7mQ1jigM+3CjZ/V9nf4e//K6kV+7eLs",
-	"BCthTB00ICjBbHQp2qTt9tAtRsg4sqlwNEM0gROFv9NR2b6TqdZGGCT/xVSYSteNGM+MrlyGlvPTGeAK",
-	"jSGnjI+QXllvVHUQraY8EnQe08as/HTvfF7BULm5JMaGnf9F5Ho45SrN7CavHi54pE4MDIV42DBPthC5",
-	"YJdiXlhnea7TMoFrJNVYKlkIdz5PSat366IE47k24mYoA8WlEgH30tqqbBbVg2md2m1pn5OtwlPdvvpt",
-	"NMaJ7G13srmMDc16lZvUdMg6u0edqO7egA680yRQer1o5i0CXvJ1AkdFXz3XiGrmjpqyF1gjVpSpVvsn",
-	"hq+rZ9q6g3eB/qzx1880+dPwkKIetL0yOeJGtgJCltaZTgKCCZCxUrGFzlPTSvxuZZpxBrabOXM5m/F8",
-	"SSrkXObCrNe3JWhB/IooUiJAjK5u9APDrJ+C8Ylo+Ai0EmsXcI3MF6hm3BTDED63PV36LnyrnTRlHJ36",
-	"NYQkL4C0OPbEi7ju12/zdKzY+XEH3GmICAYVrHDbtIK9XnvOX0izK77t1gdoB9te4yg1BQglrothssYa",
-	"TVZqJ/nBo2xeHSGrQ8Bq4de9m49M21bAHoSj2GatSbfbzUz9UokVZbRKwJBKPlHaFDIxp4wHHxEY5o+Y",
-	"LBoRxqyjNJmDdA6sPNe6QLFgxJPL/cAlbR8gb2gfH3FuaVIRNoWFlZgZoNWKGYjgMCnsl/is13luqdEl",
-	"Td/uVqZPRNhKCvZtf+nGjp1ZoB1dRHrbLZv2hqxWM1POJ7cds4cY4F62A8AP+/2f/tppbCraK2tL3T2o",
-	"fby1Pk4yw63nQ9Lblvse4K2HYc/tCQeyJXMvGArexxduOVOSt9YZc5qmDlR/Tlmf7rM7ancBA6Oz1bw3",
-	"wVL6ofpDHGzTmjUMDubK7YpWCETrOQwu1FqCeuEtBk1bEiJPMcVHjz2ugFDoR5tTWPGQbD/xqcchI4AT",
-	"KF0vcL/WnwbOa+FEOGxCYW+Lq6nG/IpaPXeNBj89rtoPvj33XfnJW/a4Kzi95hS8A09fzauyXXtjLjOR",
-	"DiuH3ypOvTI9UWgpuQsk+WPn3JgQXadzjx6r2ylWem4KEndm79/N1n6XxvIbopNuppm7WhBvb6RbtbLd",
-	"0kxmtfotTQgfT+0O9dsWFbV+7jeorG0U74nMynZbmfuFjTEuAjMtSVA0MYxUKqvsso6HM/7WkkPC4Pw/",
-	"/ytLbRPdU3ZIPIaMPb1bx4luAXd7GvoYd5CJbzKc91qgEDYg5oNCXDa7jJxwThgS6zKzPMzUqNIO5Hq9",
-	"5JcLSmwh2uIW1/D46p22A7biceJqIoYUl4OxWTcp1tWjLT/V/CZbJfELZxC+HxiIbI+NsQbxQe1XyR+8",
-	"7TSyNVuyfYxaba9W9Tt3cizHww4idrg/4oYScaz4FE9tsq62N5vXt3YpN/tpW4/NxgUMsuDtsITVRdrK",
-	"GtDYrpof6ZGd0/rooOYx3s7S81pcFy0WHrK6CULh28D+XKpLxgs20sWUCZWaUwfxTyuLeqYXwhCifion",
-	"U/jbIgB4LuyrXqqv3aW7Ga9znyMIreqosePNi9W29w550QINBf5jYR68CfIwIcqDxSnaFJQFaQyJicYn",
-	"BA2lc4w5bNhMY/QNV2zKs3EVvljwzDmAbWBBHfcRd09ZPBaLob98ZjjW+dAcxScsPjwwfz4ibwy6bMjp",
-	"NVDUMw57yo0NJPCLh8OomSgxUKXqIa5DN1snCXJA27C2VCLs8j+xTSN85XvXsP3xmVic++af6fziCNWG",
-	"3wueFdMd72ol8LlZ6Us6IOlyyyFTvy//sOeGcE4vN0+f7art0AX0tA2ubwNbuQqiVyLn9I3sdkUOM5cz",
-	"w2dzwgwEMNTPj7dCof7QzLXajz5/+L4Vl1plWn2VCzj4t6aYgQa2Pdu5wRtB2XqsXmx9B6ACw4U4ZUov",
-	"mpxkOympjl/cqCVUT4JmgXuyPVeolvQC32ymBLqBMTTDir1478bRegwtpnJHgTWAbTpUZoWsCI1mhEKO",
-	"R7pUaRhRGrE40wuLKQb+EXuUcIv9ld5ut0Ouj0zY3gq5TQqRddEMOxqnMGDBBjE4KdbNr22DXvBC0HHY",
-	"LovabRDTdECQd7hoTYqbhhuB0XHyyrH+XS/Pre55GmiGm97yGuRWho+mCBukP96MlXIPturd1T2rWmzd",
-	"yAqWudtdez0N5QenkGU8n2CsLbTYJkSsXqPbOBKMG3B9TP/9vyxqIjqlOyCZAgM87QM8yxzO0P1+m1Qp",
-	"TVMujap1lW8T0/VEFCIhv6ZK2duS4zGxrk7y1EeE+W4irQxmlJ0XLE5yWciEZ0O0QMSswz3yorsp6Lmx",
-	"Ra6VZHNA3/OLl+zw8Mvjh/tHzL3jcmU7L2HRDPa7Hia3dUHVJneb4bi1iNjy1qNYl5Dj93oBfSwJ4OIW",
-	"Fx19i+kSVry3Jr+HsFFk7XkJwllZJZPRSzBMmh+s6m2zDWS6xZX4/Oz37I9HzA+Ozl/EHvYe/vTXf/3n",
-	"g4tbd/Z2bWdtJz5ih/0P6tDIyYy3i2v+ZPzrP+O9coeDrlQdlhVjO0NECYD4sGXsR/DW9irnBbz0Nb7T",
-	"DoX413+2eDglgMgRCq3bxJEFQQoYwbIOl9hZTGUypRbtHSHA8MWTbq9FcgBuA9u4ch+jdXRj9ZBvzHDw",
-	"Qk9ka/QwpTh5YFgGTyDZChQJp0U4FWKjBvGNdyvsJMa4hAo3Zq1p5uarRJAdUt9Ylv7+plimbTzxN8fo",
-	"YFi+Na+CDGZf2UFBsX2MllunSLKv1HtfQyaD5lYMxQ2cIAx/Iq9Ee1Mzfj3EqzDkEzGc6rINsP2tZ5X2",
-	"1qTawjzmMr8thmLHaA2b5GPVXm5dpzSyoVTDscPUrSom27vHbuMCChGRer4VfMm//dI+vyaBSuAwCrfm",
-	"JlymG0UD++hvXxRe4/Vr2X5MmvjH6sS3ETIiMrdAgpFdZXtKYanZTQmyXLPrx3pLI8ot6CKpkR9IFmtm",
-	"iRvM1XWSuR0nDg0pP6yK6xQP2u999ajXQqJutipvSYpAsMy0mli/Y+i0cBVVTMGXFVD1lClN4tMduBy/",
-	"/OLL4xvzLN+Krm2vJG8geO3psThCGUBJtWmAMB/fgmNxJcKkzPiSjUQYCuRMdT7bJh72bnuKrJ+JWNpr",
-	"004x2wijv16tl97tW6OSAsWwxWzJfstGffYbNjr86a/XpyyuBbfZ3+1PPoI7Hqj6e/Dv0U9/vf7pv1F6",
-	"ki+PP/98/6iR6odaRkh60MVetOfb3dIojnN64VoLPr10LeJ3f6yafR/tvcQyAm2g1++nmuXWO1HZwE/R",
-	"JO7PqKtktqRwD0wgF//7uGEH37bSWN0Q/u9Rjj08+qJdkH2FMvGuSONbYItSiZUv1pg/3a+3gSvBGszm",
-	"xZpEweMyy4ZrRaFMJ5frxpQ5PWLVa66bBvEbAE0rShCdpGpsrs3VSfkxBkt4IyaFdvUWksNc6Dmll9nO",
-	"1k+n56b52lbXj/R2ckNta4OLcmSZeXBRWjbebu7GkG18yOYnXOg8bXb06PN6R/1om8PiaBbSVlPsuXBX",
-	"rD74lu9bJCMCJVJgnKYg6vJDuzZihZbjTRJMW+WFHU6lX4DWPfxAJ9rfp2dqkz8qXJEK+Xw7v+LdBApt",
-	"ymBG7q56ApPSrIMxr9oGUADdHqpIz98KsEiv7o5OpOS8tzkp5/hmmw1lDXiyLShl2HCxWKRibSGak2vo",
-	"n24GN8SzrAx855u4yV5fDxAhdQIEm7QOdFxJdIvyMSW6rUJarM3GGdThm4V2aSRqWTVZJ+azkZyUujRD",
-	"eD++bV6E0CO3xclekzYlxvRjQxxbHLEY85RVH8V1kfM5ld/EvKf4dKYpx6n79BZ+UmKC+Hr8W+PcQDup",
-	"Wq5Pe6A6NlNaGB3bumQTeSVqLosTNG0NVJA9sxuxuFTWbTt0HvC4N1AXmFjHeVTt2asE1ITn+RJHjFuL",
-	"/u+BipUuhs4ID9sQIwKIxURt6UDG3ZtSSrdDwVcek4HLf6Mm6J4L3hlWqPBWH0yFBlhww/So4FL5IPd4",
-	"LEWWibw9hH0muBruGO7ifIptVkSs/arHzMOSgkhoTqEc6c1pXhqZSldt4yBxXMsZtG9qqSZa8RCuEo67",
-	"TkEUKFxxYQps6i7CYGTaEgPTnnj1CgNcXNy0X9TmngRUYPVEbKapVmzYjab+PaEANvv+XcW91bieZ2fs",
-	"q+NHXzBbyY+Rd8aseobXOT+pBgN6n7B0sk1ZLH1Shgh5BikS7Ymx1mROeaYRas8zaQsfRrb6XksZQ5sN",
-	"fksRAaf6DF5uJVuqilpcW52QzTllaWoBZuMDVqzaVN4w/sd9K3bvPwd+U2j2ttSFTZVPtJ6qOjzq99cm",
-	"Q28L14J+fv/69StGD2Dilhpy+VEtS+1xvzWhUyGLtoSlF1OdF8xQsJSjMu78QCutQy1sJcmma+/N+XNn",
-	"T1k6bEnYmKPdZa5OkGddCjEX+Yl95sSekNiS0vWaY+PW4K9ujkFEyQb3ZO3ggMq91QV57fLcS1e0s7c2",
-	"FKINjAnvN478CePsHy5efste0UvA9TSlLdTpMmLxQSaVMAeDst9/mCj8R9hPic7Kmf0qHii4m2cX36EU",
-	"F9MT0v56Yl/nM2EfZ1TP19cjJ4Fg8zq7eW1c2XOX9WoH0Mz3odQUVaHOFhduF8RBw8lTgaWL1T5mKqnK",
-	"ynE2yri6DBOhBcHdhcCc6N2GbJzbiqSUaqB+FD4EEnjnML/W9UYWK8yuwTMznbbV3wWOvY9VnmM6SPiF",
-	"VtkyZoupzEieDWo6M1/SGUu35yLRGH3RwUYM48osRM4e9R/aTExB5eO4YT+uOreyA3a8g80YFuN7+777",
-	"/BKbqAJNzDpazlMn4BnWmerCzct0WcYn+7aMVGHrXIMcPtGs0A7OhfVk+C1S21k0erWRNYvI58ebkoGF",
-	"K7ftQvmONiPNyRWx5sxhXZqLor2G8zzX5PXlWXhoSAOtOXBO4XxBW6SpaAQBF1Qp3BUmAJmAoiMqWBHZ",
-	"Z13SkAp3espiOGRTkaXxQDV0X5RjKFA4si1ErFRjWRAIS+fMlHORG5FayBcfqK267blpuFAaX9hGJtP6",
-	"EQ/WhkK77eT3oj038q23EXt8VWvQfnketmu/+943jzvYOHO7EQ+phqXZ4LqjK4LXA/ZT6UW7Ay7jk6ER",
-	"iVbpGpfpmOe22sRITKVNPz7PJcgrEeM+EBozlmDoaB1BZeuTr0n1v7E6qo8xWg0akgWbiIIsKTjTTqmw",
-	"nj6seATUoipNgpp9hAzIU8qIcnTx7hqpE/dmtetX2nqMpWL7+44G7yOhLPPMMs7DmnRo4za2jWpzfUdu",
-	"i9uvf6VZrwbsBSVSXARex/ppnaXFaq7EqhOd54Qr6+5SLaIer7e/+tvKjp6H+lkzJ0Kl2Lukbx+UrtQv",
-	"0W7WbRxkmd2ust4Ga/UuDr2Et17toBgfZnQnw3uPp7XCe5g0wn8OiWeM0gR976OS2803W4DLb4YZ72gP",
-	"v5QqDRmq9e1ZdUIMkynIptvTZr+LZ76h4EvknGeuSVAZYOl0adAQvQO4pcaJ16QDhN8sz7KC7xi3whZW",
-	"bEmvdUO0MnE6P9Ltx+cs6HZf/LZKVXx+3Jree8f8C3goh2uMlUa83UxTUWMQIj1lUsHqYKJDkFkpnhhL",
-	"E9ZI1Ppxb+eXgBHZbGV4/tzlay7yyvkIg7v9iobzD3I4bHR+1G7aGlpfZsUzIdKPkAhtx7KSIa1sS3XO",
-	"zXCm8zWQyo1Z0l5xY0C6iI3E6hQ2KWgtXxrCtl2Q2eZ9tvNqJkXzA7zBn3Tu8zDvGOpjUVKpSGzO5LlP",
-	"DpGIpmSMzu90Q3qI9WDgoFIp4oLvoF5qIrfJr08r88Q9vUFs+7aWUrAOLt4tw50fW3AJb0ip0BhmiD4g",
-	"LcenS9qav0CDj/3L9PncNvG++uI2SIC7WPwPjcsPsgQU2hWp80hJCs61Ttqq/Etv/V617kqZie+kzqo0",
-	"lztQN0tU1xgTLNxcqiudXYEyCdxFtiYG34avrWRtoI1eU53VEavD/SPDbM2oiMHR9j+FpQfbNbPcFri6",
-	"AQjia2HVaoRuvkDYtJ9EUDCzWtT27VI7VzHKSwVkvCpRcgf5vm6F/NimuoorNrRrQZVbhGzMtSlEytak",
-	"d98xH+l5qajGVMtJdTNYA3cpgBnBO7UFcKNTYaq5fyJKm5irrat5qWfY+z9cvPwWa3XZz2cX3yGNvG16",
-	"s+09gpWHe9d3dkiIptfCXj+A5+2O6zovA0BXi8ESDfTbN+dqLdwIa9wtT1ktp5hfOX9O14eGhHOoFieq",
-	"8t1uluBK5fTAj5lOeNU4Q/xzLnKX/2N7i8aGW77tTWqFFWy9gFvVsbuDzCD3nO9vV+Dc5kQBK4n01qze",
-	"bYOCbsEgPya1DInfprd8bMCHUDYf7tS06G0kd6uXEDTuZXgJ0ceBkM+tr6Ojjy1jerQbhNbTzg2UsprQ",
-	"2uPlsZ33TN12RZGGuLdWWXoHC9OKIGtNLFviQisWeXeW3XRt4svDdax/CzDcGgtaDeG0S2mjmzl4W+qT",
-	"YHYbl/NW2Ww+5ZKhVazdj131K4tNdXhTkfoi+pWqTin2F3ethm0E599QwrwVN1l3Fk/4FZVexPwSBKFF",
-	"VOOtYc+3ideqq3btipqlXh9Ubc3bLFZhpiwBFdKXVFtPb16vYtA/KNnulqRqDTz8NfqJHWaU4VOgCMev",
-	"Xl68ZgdXhwckeB78KNP3B9WThooII5DaAas71bFoKXvcRcfWCux6oPA1W280F+MgNwe5GE9Z3EC+etjA",
-	"8pYA7TYTMFzsB4bJFP3llDUc0eljIVLMDmiY3NavcUeA7ztHbG9WkevgjHvxat0FX7xjd9cK3Pw2mXdC",
-	"5+cN5itaFOtv1DkjmA+suINnYCvbG7buoHxhRBgcFtd+Wi1JbrMH+vALzCAo1ZZlynb2u9Wl61Di2Q4x",
-	"vwsWv3n9QnR+3cnYuCYtu79b6oxQtPh7VA023a/WOMSdtAHq3dxOMd9Vh22mfry3oMuLRBM43CMTS2VO",
-	"KkwnLs0JnHJv+zmpqoekM6m2NO9iR+elMg7vSV9QB+fUPn6F5hfji4ngd4+pIxhvlaerlX/+6z87MkMJ",
-	"zjrnR12bx4+9ePmE/bbKpoYk5MXLP7LfVvnOBipGlNPQpPEJNnPxpPKaurTTha8ihXDmDsZ3FVNtxED5",
-	"Ms4eFT1GBHNM4GibPRmbNwd/+0//G+VK9NArjkXFB8pCqVcg05EbFEav+WqocgaCm7Ho6I54W/Js4JDp",
-	"QXIxh7Jb2CrL3dN6hdGT5gvRQFWrwMMc7UAa7QhOXVFOFKFsJo/uCavWMgB35qXCsMZmtmlgQZgfm2Bm",
-	"FbBLZLCuK+tXx2lC/3vRnusQMwDUnm/UcNzy0PrT9pjar774Gnq6SGvfvcAuKdtn/RdXEPoidadY8aLM",
-	"xe6hpoVQxXDGi2QqzHpAJ+1iovP0ARZVzIUqvAPHFDLLcA9cbvBpu1PRdWem/OjR5y3hKL9/vH/06HPW",
-	"mYrrrg9640orzAKJcRL+8sBg0LknJ4qkio0wglUz5dZy1vocFDOu5FgAm2xViV7lwHxJyI4Y8HN0xb55",
-	"fUYWPw2zAukHRXNCGU3LGVeI6aTMkFiraaoXZp23zjZbR4PXyjFZqDEKEnIkM1ksW7MYzGm46xN1bJSf",
-	"YT+Gaw1H+KsLHFqVVXEPW+XLN6/PtpcYfTtDXNt2ko4VuikyrHCwr4yPHhhy0f9lU/3MVT1MzsQQXmmd",
-	"10IW0zTnC55t0j3cU2on20D1Vqt1oD2ysNqGcMsin3aidgSqsxXu0Ooqh6uwcsmjFSLTvDatYoQjaLdI",
-	"n2LcuztIgp5+3mSsDBrfOO4Ph95sDxHaOZPKViSjlUJsmYJlY/2bepKY/k0alj+aru9q/K074BzHd5jr",
-	"4xbJrjfVJroPI3qlYt5Us9BsXLaPZktfWdQbkEbBw+HyflTD+ocuMuLdVlFbuRCsENdFEF2N2f8Swlex",
-	"ZMpznhQi9ynCCz6KWCaVNeKBMJHwPJd8ApJRUeaqkbbsqL+ajinMW/bnweC639+H/34J//ka/nMG/3kK",
-	"Xx4+Gwyuv3j2w29a05e91pfitviGWxjFtxfc1goyBpTAHdgDKrUtFgKEVK2RMkSSi6LHLqZ6oRiqUXBW",
-	"TpksQKS1JmSMOkSfyZamJuoxctkC7URuzEWGW3Q7nuQWcTsHQ3jnWoCdmjKp84ItQGcojaigaaco5ypn",
-	"pSYPgpXPeJnKghU5lxm6IfRCifZEf7MA6zYSmcbSRPqExZR42kZCI1NxodA6Z3Hl/F6Nle4NlM0TetJI",
-	"IViD1j0wVGuHIqvjyvARg+YM4+GZVoIUUApkwyFZOCs9Io0pySCP6mgzodqdneS7y1hWP4mthy8X6i75",
-	"8YgbAcTvxgSt0O/X7uFbQjdvKG2a+SIRWyBlbUUJoEy6aFe3OYa7Xwoxh6M/kyoNaidKwwqYE+twFgSS",
-	"MrcgkQMeg25AhcbQr7Zj3VefFGCrBX7ln65VgdzqOFIDrnDdCnXNS5W0V0l/nZeictkupEr1gk1FlgYl",
-	"0Q6jfr/vVoSy52dU8E1nqTCFfQArPcAat9ssrhxCfBfAUAgsvxH+0F5ItdqEoKSjP/n+4NUGGC6ZO2M3",
-	"WKHrd+QDQPAfBGgHgf6WHirVnnHUtBwaMoBX2SJScSXJVdRRWLP9cF1mCH/DblvAQmQU4ro+25XrwV9h",
-	"LEACnGEL0QDXDycNCxIi6cO+1+7/q/DCW3MrdJZpNBSswwr4I8q4pUtjnWV6YULctmsE3VAgvDYMp/W6",
-	"wJne1pRaH/iF7aX+7fOgz/ovgf105acLP5r6Dy80GVsDovUR0JS7BrIKoPjtRLNmzC0zd8j8G1RXXxoH",
-	"ehn7cBKXNyGkpjNJybnxYbMmw7ZUw5Bbrz5wOwhte+kgxHy43Xpgp7EpD6ISwEltVoexLCK46v6g3hbo",
-	"s3tmzDqPac85ZFzUk3/WhRcFe7Y1fLQRurORQYWO7Jrf2lWM8QlDKjBydQrrZ6A21zZ6hMc4vBxliT2H",
-	"ymp//yu+P368/+yHH798vx9+PN7l4+FRezbuN62wg8cMgQfopUp06pNZzSYHL+KIxaX990/z+eyHZtbw",
-	"h0eblO//Yf9/+uHHw+jhmvF8x3PJVSJ8ovddMithyh0q6EquvivbGhuXirBRjbJa7OLJCbsEwTOe64XI",
-	"42igTOe6y37Lkv5Pf53x6851xK6HM6m6f04OKUIaP1JGlBnPspqrkWBSA1WzlZzaLmymeJPGrNNa2qgb",
-	"ds9+w5LDn/56TcpRQxrpb1tG53DLB11OgM2810Vu9/ew6bZD/V1FERpJFTBu0RZ4UEs2A8mk0PmScpk4",
-	"0mSj9tZC0EJ+O+fGZTDfkpPa0b2iF+2nZ/g+jd3ncNiV3+3C5m5hY71nROU23LbKFNeCzB6PRS5UIobz",
-	"tr3/9RMECvR/+mtnrEuVogRqcQDdA/vHLVkQNnhT6mC0PY14crltquCKRtxyWLun47iBgfqT+Qd4fqPZ",
-	"HfWl9p0AFvvu10/eMQ7Sq0jZaFmtwwNjKyTXSlttcTrhIq6rauCypLnx3GIt7wxzWIXtrkiLNskVLt0D",
-	"44AYLNEzYSwkeCujZSBBWGp5s/3cHeLGYq3cq3Bn/aL7ixlEF+8MXwvP18eL3rMQKZ9wplVhnAGzcBmh",
-	"7ZMNAOZIYC4R4KYEHGjJdhXoy1cNMr/txVvZ8FpDq9O5wRyxcqdXWaZUspA8i1nn+dl3BL5OtCqkKqWa",
-	"xKxzBt+iAGHpXDiikFPahqyHmt7fnmX6Jp/7ZmoHJmiyMa9buLRvc5DCaW9voanv7Q2aQb2LHbb2ltGI",
-	"GwtPO6tOWHp6p8Lsm0JGvrX4vEYGbnIQsH7k/RQeiwyKwi2rdR2uSXLW3yCj3ppRflQH6jZk33KINY4s",
-	"qqV1xlUqU5cpa4cTlF5JI9aESuDwhYMeJlOtzbrsGGSX29iMSz/ranisNjLj1xZNSKjH4ZoC2a+3KdHN",
-	"tApLe8P5S4Wt75C41QoFPRuTBXpEpUTcxv6qC9GeJZFXHVP416Wcz0mbITaNSRJPmcDCn7qYinwhTXvK",
-	"aVPOhnxkhu0FxN/9+vzpO7cqINHuJzxLSiz+4AmDWRFz20Z3y1W4TSW5xt0IC74F0117TvwpjPyxtrux",
-	"/t7YAdbX74XgptgnG6yxx8n0WHx4cP3nfu9RzP72H/8P+LT881HsThtmb3eOqdGS8YFCYwGJG81IDLQg",
-	"WutC53E2EzLlTBSMZ72I/UNvoM6muZ7xQk/yHvuaffHFMesc9ftHXXZ0+KjbcwYMNzbo8PDAdK67P/03",
-	"gkXzgVq1awRGi+s/J4eueDxPcm0M3RXDCs0yPengp4G6eNL1EYzwdW0a3cgm/YL5+lr1eqHYxZNTm6WU",
-	"D1R1rPTYERP0POHBI5Cnt43YG2td3qRoPDADFa8UGew14c2+CH6DYhHeOzjclMU/sMyYcobo65HRWYk5",
-	"LzNKy0np++1FGqi1N4nxmUaHpDZYcpFibJSuEaCZzsVAoSduyrNxG9Hqsae4HKRwUkygwUL/fvgGs0rb",
-	"5RhWX8cRVUHxt9kqaWN5jYltTAVmrwO7FaEU7eGmv+znI/x36b9f2s/0vcF/ERe+nZDor9y31KX//Fxd",
-	"XbzNi39sfLfy+ajlpf/Q+G7l88pLtS8Qdv5DSA9eVjUsdwr9dWc1CBqwJzWyh9xX4JRZ1hb2S3qbr+2+",
-	"bTV1FIiCm9Dm/2u6x+ovRLWuN1LLWsXOu1uiU8ZtxYtMjAumy4IV/BJxH17NvtcFayDQBAaH+ICUViKl",
-	"hEgNpQ615LjQbCTWkbwOR39gjjOFO+neAomD3hxnfDIRaTcaKHyYRlEP12BxMOsTRm3TWiGzh4cfGHbx",
-	"ZKDQIMFcRd+HJ4wDZbZxMwtdNQnkFsSlVExyAWOGd4VI9Yx1YAO+esR+bSs4mTlXBqZAaCSkmrBbX/S7",
-	"HqBTCe2BrH7Ummp59aB5gPjtVKL7qaC4G3x3l1IdLWBe2/LqNUS/eVLmslheoEyNMx4Jnov8cVlMW2wD",
-	"8LXO5V+QX5+wr/FZ0tISxFc5RBdDIJQ5qcG0Ioxd8gFqWCmsFqKG1cDSmVTxKTNC2Bo2mFpGavXAsPh6",
-	"3812nwBRNqyIlAKQ/3FIlYg7LYr53vv36Cod69UpBXVSKH+CqSXYLhWy64yPdG4dB4HlwzPsCIQfM1C8",
-	"9vNKMqiI3A5AhrwYFMolrCoSDvJeJpMlRsszI9BzY3WeiERAbCpi80wXmE77SuQmDMo3ePNshnYTsT8+",
-	"dglLoUmuaqC/gRqozz4jcYE2ycXK84Jkr95nn7GqNDkIY3AVyiJISkGSkS3VIFKWwLbnkrsoYdCtLPU1",
-	"DGMriHrMy1EmzVSkbFLKlCOMk6Lq/LrT4sDcCmsboPDnCchOQAUVSSVWTLl4+Qqp2EDNc5EILDB46i16",
-	"QGrdWqCw+bbkGeXXsJBBW4LAmvx67ClPpgNlKyyoNEx94CXvXMwFLwzphFKx2JlrYlzdX/2KnWl1BRq/",
-	"Vmag9ineitgUpQmA9TGKX4phgr2+lu7b82dn7OHDh1+xTkza0wnz5pYYCDyDHt+8PmOgDpTFvCx6rDIv",
-	"4CGm9CAwPAyKzAV78+b5E0aUxPRgRFSKjX4cSyULwZ4/ffp0/4tHx4yUNdOjYVuILRXJ+5Z/iwHpCt9Z",
-	"nsJwLDSOQtaCGjHSFKzDrf8Nf6w53NyZioDvsbqyCatdIe9yrYsuJicF7TF2ygNnBmatRIYzsmSfEdEz",
-	"NlGEq1tAq29YJ27jCSdU3ByrqDDmrC6+KVikJNOgaHOQQbIsYoYiOAtSA2D9EorKQfcj9gZtoboAdzqH",
-	"0aY2sA8PTqoToj1+zYhgjcQpSzIJjIeZKSwZNEShgXKiNO4YTqaYiiVLNb4Ls4wYZllmoGTkzKYIMYyn",
-	"qX2Dth5PIKiXnvyZyBEuE9mLZSKn2CFZokBlWAk8gdV5O2GHIIR8fsweX5w9f84yURQiNxFL5QSuKWYD",
-	"6AG9H8J/TuA/+3FEU+JUywsVK25fhfOF77IOsV0WV8c77vbYGyUxaQFi9Ql9Aa0F2H6e+zwh7kICP4NG",
-	"bP0RnBOylYEiUhgfXB3GLNegxpGAtgMPfGwxxxg6IFAmGigXNUv9nMBA3tEH9g7luXdsknPY5XcD9W5/",
-	"f9//Hx4M2Sl7F+4Ve4d5PYllYfQjbrfdosjW34Ef4U5F9HCt+kqlfnaen313gHZ+22nItdk79uL5NxeI",
-	"45m48pzvqH3i5p4nBbwoatTZjJy/EzUYIWygtM2XrWAlEmG7r8sI7B1wMlPw8bi1W+JuFWsDZcDmN/ZI",
-	"q1Nmw75D65UNea0Z3e0ISChh71itVDVMG0V5JKnQfekYEI0Ctx/bGKinNVmGZdIUxNDpIBAFgOaJ3ZLS",
-	"jSW14LoOVIvoc8K4PWFTnaGl6LPPgMxoJT77zNoDZmg1gWYLkfbcTLBCKgxBpExcg+IiC7Kg5EhEQT7B",
-	"1ELGkzR42jH9TBTAnYBDv5wL9fjVc+YkSZdX2qH3ub1C1cyBYldC5gn70w/xQHVcOw97fXITG3spaKHQ",
-	"wAO34yW8dISrC688fwJMVYmksHZhA8T6sQPPRWzGM2CYVIqIaD6egit9KVIfE8CO+4enxLKk+9ZyGhDq",
-	"7ErRgPDphz0WH0wFz4rpX4B2HWCBKPpzJopcJsamPDnQc6H4XPaWfJbFA4Wyh9K2k07sFg4XousI01O0",
-	"FDkqREVKYSMVWylD2Ylxq+jAHthvf/NPBtOwEK0cqNgW5ANK2VIsMibLVGzlkLbakSfAJGwtvZFOLTMD",
-	"8QlG9PlX/cONdfZEb4JcND7wN+7g6KCeNYZ14sHeYC+GmSLsfKozer97Sr2fXXzHEpFl0O3WlfsiFqvY",
-	"ZuwecWDX8+nSYMQ7AoI7KGoyNhU8FbjM+PVh10HQbEdfHDhRL7bDqQC6MJ6bSgK65t6WIl+eoNoNY5vz",
-	"YnoiU2J+MQ3i5HkqZnNdCJUs9/8glpipgTwNVk6aSQPyrbImgHDpsSESuKVx1v+c+KotuBEf2KP2jbse",
-	"zCxVwa8jW5oUtCfL44nbBrBI4KPH/f4pHR4iXNIMFEhA+7a1UekqOIKkVmbepwJSj0wE64D+YbNzBuZF",
-	"J/QMFNw5kD/8taUnIkxqgbm+ZLVG7FIsURY8PjoCvvuo3yf1BejGQA0IHa14RldpsEfkeSqAt7kapPGp",
-	"dVuAgDiBgdgTbCW1TMMR/lYjtYfOrEBN6DJf7VSampThVSoSHp0sUC9oChJxuHxaCRRjPVIGBT+k2peI",
-	"nEWlN5OJsOm8KIhsD2TXXIqC58ugKmmo5BKK1NgUlr1+r2/TvAKN2jvZe9jr9x4SHnSK9gBH5eDviWgD",
-	"bmIBQsOO+v2gGN0814kwBolWJq9Ej32L4pOjfD2fH1pq9TzdO9n7nSh+b7tq+EKP+v0gmQZacAKK90/W",
-	"bkIH9SZbDXVBFoHGPHCYsBqPqL+2Zvy4KAOb4hlS6poxZe/kTz+gi2kG23Cy90JeCawBF+0VmEvvT9XM",
-	"DZUHdDxj7SK/yjWcf1EaimQV13NXWIf0web6ntIjWO4PmSeIt8B9ioXOLylKx+bsNazIS2MD4lb25Bs7",
-	"shv3BMZ1MM+4bOxG02C1svC2h/tY+mDZZn4eazch5NRrd+L1VDAnrHhdLaASC27YqJQg1aK9dItjb5vb",
-	"7di7Qe6w0OHQQc5yw4/Yf3j8zYv7WP/XoUa7aelJfNqSxliPlC+Syu2vzgZkWZb0mXQi9qj/cKAqF3hz",
-	"V1g806lAwePGgqwgEFYVWZlDz53YUoVow4GjkDo/DWprfpA4kk69SisrVSGzCmYDLRsgoTONphBi5gH7",
-	"HIAYIBOBrlpZGJGNsUYmVVeNA+2iVnY1YnLMuFpGKAVgpiiZs4xP1tz9c9qVeyTHQVHW1fOK3QMTxvW8",
-	"9fmEtx7e/NYFLe0bxa+4JDTCpqNdjXzDsfZpUNee7M8+Q0v5yWefNY3jK3qvzp36hoIF5V1jirw6Y5mD",
-	"vIT1bwhhGwfBJDEakaw4b0UfxUbLgYplGv7YY89khtaSRM9GIAajvPj42yenLAaChndEKou5IhWn0LHN",
-	"owbfRWykiynwm9oIeuwPYmkElveSyhpP5twYKy5Q/bWBmvOJeGBYHJTyirFUmPu78rdjMDgN97TxAlxT",
-	"RKNoVdUvhaZBOqSHYCJ6zt+W4hTlrbqhMhUUhKJz9LETmGfGU7sgSEpc5xHphP22W/RCmuLMlWDw+oLB",
-	"OH/glHuoDbiEAyf1aNXt7lCIInsftTdbxb3eXZs+3+XdNekjnbZrsha2tq7NoILDVo0GhSGal/UpzzMJ",
-	"t612sqPqPmB8WMsY4ObUBrANaHK1/xe8aOnd37x1vWMmvA/t+xWfCGbkX9b2ggptrSMf6fqoHzhyj2p+",
-	"3NaSuW0yV/1+W23SkQ262msG5usBbn2oDIo1P9wj38OTi0DlFr73UgmcEEZqIe1A3ne8De/7mqfO042v",
-	"HN78yhvFrUlbpPTSFtzymc5HMk0F+r2Pj766+Y3XWn/D1dKOzvxM3Nzz7zMKwpGgxC8DHm759Q/R3orB",
-	"lfJ4bZNhtc78MQf6PUgAVH0WbRBjWfTYc+JS3i2rVSKiil/aVOlwK1JCfdE3Q2sQoMzsGJCPRmCQbKml",
-	"NeIhVQxaYWttG1M9QkffZsm/3/u1TgeiIsm/8CvVP775jW918QyDeP5O7+BjV8QCjihobghusBgJ9GG5",
-	"JBz3fTsP0GG01R3dfCeduS8BSTylmsYW01T5t5yimpcqcslSUIC3TpXAe4UGtPlcKNJJN93ExziFX+R1",
-	"xKG90GutElTA99OV/AVcyeDoofsusUTe3UB7mdbdwB2unK9Sj8dtrs0HXTyKIDSMg0ZMo45YLiwo3TPB",
-	"Rqypx2LrXE4wAskBTLAcNbLKKrN1JhV5DZlE03zsmhnqcXxKmbd9Q56PuvhB9KYUfIngICt49Ni5Q03W",
-	"h+HTksMb/hNor5isyAGGLHa0IyzZwbYGCqMEMHYPNNvYY1Nj1rE+MIyoQj3CmpHRctC1BMgvj3UaxXMy",
-	"Dwzt4p9a05b16bsMB6V6YJxXZ6AmokDvD/n4HUZMFpF3vrjZPjAemsVzYgeYa4qbgTLlXORG4ORfugRT",
-	"PkM2klM6p1MuFUu4orR/GLDBOsf9r6KBQgdUbKNkzdC+bV1g55j8o3N8dBSR43OU4z9OTqqco55NQXun",
-	"Hsk2UFR+5/nZ79k3h33WOeofHXUjl/e4ArBdvHzlYnuB2HfRpRqjd2toty4+oTHQtiJaijihDQix+4i2",
-	"CyVcNIiveIMN2sNihgaN37BtSiziE8YLlgluKJbJBZcQKsseNp6hIZbamfHroftlOM45AjmomZk2BTt6",
-	"xH7t3XouOtANZaBY1SwctQxOaX0SbgiJLlWB9eDR72Wb6tpRSEXROWZ4KeZFOI0adDJ4MLYYJRhDx6Hk",
-	"jbyO3BZ1KQGcT49PPY10MR0iLHkoVGqGSojUppWGbcHJwHBrdw0WAO1d1ols6wC4Ez6Vkyl8thBvnud6",
-	"YQ2ziH/mBb0NHZ6iCQoasUgjGosdQYTINmDchQ1BdhCLxXRJifwnQomcI+wptm9VBi1c5G6b/ECU86mj",
-	"xh8oQSAb+1qnyzsTHvzIPMuvo54xaeKK8HL4cXSJMGkB+e6x/xc6WZeznhfTsK6/QTBr3GCOmOCmPsVo",
-	"k6vn35jg1N9CcDrTapzZBE/Hh1uM6RVfZpqnr7V+wfOJoPcebbMAppxTObVvRCr56yWl+Dw+OtrmZesJ",
-	"B1nrqSpksfx7FQ2fNiFzSOVQxML6CiR5BaWhncj4NrkLcXGe6aI3pwDL+zCk8JlAACE6G7AzczWJ7cxe",
-	"ffs7Jmd8IjYpYK8yXbz69nf3qYLhGA7sKrSYdEdScTJnbeMMxll+Urp+9psFByfQtiJGp+jejR7ulN/D",
-	"lbqowMReDPQBYjOeX4rUishWQ7Mzt8HNY4khGwM14iolhYFXZY7mXIkMs08vUGGhq+mxVZwwMoh+GijF",
-	"ZyhkUvs+EieI8oHWrZfoput98d1HuN7mavKb61uhOz5d6F/ohaZzc/8XugLcb2dTqSP7G3f4+UpIGdYR",
-	"m7NCs8M+Qixt/EcQy2YnjKoeoUx4pR0SkJluc3XLmSuhCOpQXH0fV9obaldO1+v22AoKs8deBYFvGJrT",
-	"jE7jaulCuFwdLQyexSKWvLDAd8PICQ2LYYnCaS0320Ch9mVQcSPSZCsXM8OXDg1KwU9Y402XhZGpLf1r",
-	"wwNFOlCkAeqcCBnjZO22AAVrFadQp7EsKHLWmsapH0S8DtRx/6v1Wl2wKL84va4a206KXf9eBmCrgK7x",
-	"xlob1twH1EQE/bKxZXkq8n9zZPeTDvZL9FqHAROGyjpSfG/AXkIusCWP2cBTLN+5AxP9NxpzW1vyhpG/",
-	"TcMysJbYhmtZhuRyY8dUN5xca2RDc+W8IlcHmRRSaEm0ljZhj7FptJFXFfQx7TORekSAUtJYMsLxypTW",
-	"OT468kRZK9Htscc1hkKp7DOtJiJfnRlixL46QTkWI4+lYWPMQTpQ51hTyIQuQgwSV3pBzNO0kXiquXoX",
-	"Xvi7J+40tp+JsK+12NGoRPqJWH8i1h/Bl9oMO71Xd2q9LOOOMIboBlWAYA2+C9bx1TGBEhpWaN2t/GO1",
-	"+pMnbB6WaR2oN6/PqBKoc5I0ioP6Sq6n+MQiqKrgMgZbKgGieFUaVzBX39YDdm3t2k243Itq2X6R0Il6",
-	"pc41en+195+0/5//3ldHqh1CQSUIt77za0S16IPlsceKYe2aXCuZVGfoJKydNpEgs2FaIUp8YhMLkVbN",
-	"eDFQok4begSLgP6crMa9UPbAVA+eOkmPZ/FAYbY5K/mZimSGMlGHG/bq5cVrZmVSQivQJc9tVjxrKED6",
-	"8cCwXGeCdbxIqHP2lu/bXnIbO0u/Rqu/qIFyA+xSSZYS6y5gAO6a+nKwJyL1hdN1jkEDBA3xgBeLNjAi",
-	"0Srdt634OT22MbhuqSPGWaaTS0ztOVCpRNaYMp6gT9cGpJ/a/DMixaoGePrgLVvrDx9tI4RwWH+ZIuRK",
-	"rd+P7PcNihbfQHU/iZOfxMmPw1Y+nJtskCBXMprfsU+IhMhazhkPlG0xIWMMWxGvk96+ayRH/wXKbitZ",
-	"6dcQktrCf5Lgfv6r9l17XqRWaW4DumFLR842klw9jeL6e8aeBymhoNmBWpPkyepMI14kU0p3AYJJ2FH3",
-	"1GdaGqgZd7B2ROm5CgBwS6cgG3Uag7LgSoyJriEERzy5tElDK8kOJDZMbuo3KY6Y0iDtZJhEr2sTe83m",
-	"mEVbFjaRST2DzIkPxx4oLP2DNU5csR9s4tdPbi4KxJ4XlELdoDtnoLB6zd/+839tQA6rdI29cJGHhc5E",
-	"zm0FlTgiAXGgnDPrp3856rNfu2KO7M0Fe/rqMbv4fv/L48/ZNwRQ/rLf7z8Js0nW9/F0FV1qkc0w+1ym",
-	"uEaRizQYqFryRPzaoVFd5MHjKkkJLq2rTUQRtM7QCbKlIe3BVc+qnS/E7jpJ3Ovr9dxfzMUvDhQv4PAS",
-	"fhaIvY2E57j8WP0wbBzFdQ/vPsWs6PY5grRitkZjE2e7XmzzLucmKQ1hu9FAYU46NBTnmvJjOpQn1Xwh",
-	"DDf6FTFWOOfKECDWHnNM+EILd9z/ilnQgasESV5Cl+mHbMBhxceBstdnqHQx9BbvbuSt5RUMGjNWqkCZ",
-	"cIirqpEQ41w10fAn2men3AzHsoi7PXZ8dHSCqd7DNbeZMMPdDGDj0Gft6ONaD4NziymxOIGt1zgpv6uX",
-	"tPllaSFtZVU+siLSVihpC0nChxnpsoCL/klL+aSl3L/odE4yAm/PLVmlltxSgvLSyM1AmCAZ5sGP1Yf3",
-	"TsexJPGe8KOBH5BSJ6YufVgDaeaynvGCOJ7DuAyU0ovuia/94CtVV3ysILQIEmR8l7rLfUDMQHWULrZh",
-	"FiRPwcOO2xAaj9KJ2JwXFHuIvtiIimTywtWWCeAoOKsFp0gUdG3aCjjGYXaYEWEUEU1sKNUQ03xiqlSF",
-	"BjpTJtMmxzPOxKizVGBEU4993yhLQe3P+DW1PeQTMZzqMrdZGAMBRhrbDlbOoAWknYioYjElb8aB9dhx",
-	"/9jlwV5SwXJMwqbQTSEVW+i83TfrQIPP1TNN9fF2Y2uVGL93c06P9YECuyTkWOUmM03poVz26VN0SBPC",
-	"aWSEKtalXODF7hkn7j0c3G3Fpqjwaus/aeE/OytZ3RW4qtweyztVwW9iIXcLrHxsWEyOjPX4zThatYlV",
-	"6zCmvEQrzCW2RCFeYS9wdbGqwkDFv3tKXW/JMUGJwCzAuPovnn9z4dPYIrAmuXTDS00rNPNb3Rw/+iyO",
-	"B8rH5RLIZr2OUNHDD4E0hlT1nvSFtoF+wjd+0h4+aQ/bkPw/lhxkkuUG2nenQEebrX0rnaAh8GeUjCvM",
-	"JEBiqktUPFoi4mWd/+Ib2/U9EgDqYpPnwc7/U36puwd/ZVlQM6N+VkKwrjuB687vLk6CUMRAOymcP5bY",
-	"zBj+pB722CttCsoFSUkGMBMAPExFN9RyoKo64GStB/WueeZd06Q5Xge/dI76h93TgRKYMi+vpo4JLaLA",
-	"xOqKE1awXt8I1VAdqCCJRzV0cc2TwuaDaIyrQogRHRkoN1BlhRMCChPoVhZYDRPRJLkwZL32deP0eKAC",
-	"Qz8VRwvyaVV1202YqNXb0s1UL3AKWYaZEHrssTUAVDV/SiXflrT2UoGAS0pt5/joaIPZ9BuXf/E+xBhq",
-	"/GcSXOzMWmgW6awJz5xxpbHzp36HMRMaGUuRut2lQXb9+OjaOVdM/mHpARwjiQNOdfAjHJt/a/kBPoli",
-	"v8BQE7w8nhpFlfctFHmo9OquzKwufdkzfQdCmLVSkpOOEviEaZri9TnuiZK2Jeid82JaWbbwn/uxuD1m",
-	"Zi4SOZZJQM4CGreF3S1IvlCNqMq8enj8xfGXDz8//uKGBKw//Cy0vZJHPxnffv7r/1K53bj9/bbQtB3v",
-	"NcHELGQ1Yh7v6gINWIfaRdGJUqylIhOFSLvrdK1XNJD7tLUgiHeTqkWD7n1SmzYeO1hBu1TbYxxvrSM5",
-	"ADdVGrRiOILdI8bZuMyyWvAK62A51CraAqX7bjRQuc5svSReQeQ7Njkvx8Jdj/OJVkcyZVNupliTZYNs",
-	"T8fpnmR7avxnAjPYma25JA6ovvdJYP0ksO7KseYgHyl3hnYnHzWudfAj0oH3B5b/bOf2aYinlr4kXAWR",
-	"wUA+mEQ0G/zp02HK3BWMrFcqDe5FZTaxPpbChrihVaWNnDyh0Xt6crOE60qI307EtbXQ71WE/LdBQv5/",
-	"IEPawwc80Z2/O7mSpcp0crnzjTzLBM+NjaZCJCQCQ2txU6IKcWvFdbzBrj9dp0/X6eNfJzp7H36brEts",
-	"dyBce0APWlmtOahK91zZ9wk67VMVE6AacyhFmOGZkr8jR1SCFbrgGbmcsTru27jbzJH/SmeZz+iNFf6r",
-	"IjCtpaOw/nnMOmQ8OamiDzC9dfd0oJrVoxjPFnxpmBEF6yCU1hZSxbossnAlam0pKWgW1ACEYEy5Gc50",
-	"LmKHHKP4daz6bee6ELlwyZZZome2PPNAPcOYAGDt9REZIYxdTyop4LwfWiXixDWLddgV1vCnrMuUZJvQ",
-	"bihfVLh1Y/tFaAeneaEyTZh61GZsXw4L6AdKtcV7vqw1PSYNlrorhHJdB93ZUv+cKrcWJxibgp6YgbKB",
-	"si6bGMag9Mh2H0cstt/3eJrGJyy2Rn1CthOQxyPfey74JFoPQLVPhr/GXYysbQVK+hf8T+EgMFC4CFOm",
-	"V7nMYehwyoc2Abx/OMRnakUlq1vNFufY0FPc3FVmc5saSafWgFgNBW6Ae3QsRLrOtIh3aPciSndaR+qw",
-	"HxaSOuzfWEnqh3stXQib80y0g/HDGk5/H9Ut/h5dFMRa4NjCOtejjGpJVuib22FE8nJr0F8VO7eaD1Xn",
-	"1lEO5K7j4/CioL6EpXSEzR5j6IZy8Je5QApFruNGOYsHvtJp4Alx/LSiwSeMs6P+IeVHMDU9MiDuGAlW",
-	"uqwGxE1IJaWS8aOycAFtNLKqKLn10+ucwsSAcwpKfR9hAQC/tUy8LXkWoTV3DPSbEvZ3CTQos8xCByNn",
-	"mrOieZixq54L8YTlfDFQKS94VXmjmOZ6oRhf8GWPPQ9L3rPO8fV1l3rxqICgHMRILLXNTmOryaIz/iTE",
-	"nGM2CERP2FpF8JFiD90+VYUxTp13H5bEJ6F19TsyPhIZ1vkBBUVj5tvOSqEEwyaa6uoHYZJ0WIqFtkUP",
-	"WKoRl2mmsGV8oGoRkqfuksi0Bj2Yi9yNClfhV7/6FQtq0A/UhQDRZqUsfaHZjF/CCAtMvWv4WFClTyqE",
-	"C1fDBUIMFKXIQEnA2LLJMxz+pZgTS/K1HY6OGeL3KVrPWkEfIJBCTUSOVlmU01zSn5OwEj4VVvKLD0Lg",
-	"nAPHpRxyQiXaB52zjtFsMZWFYGbOE4rVmwk49lZ2sis640Uh8u4pdTRQZxff1TpCPsYqJu3zG+V8wUY6",
-	"XbLRshCgVe6zCz4T7FIsI1fF1E8qIinXgy+BMqJzg87eZ5+5oikDxfyF+uwzKjtflLmq5nXUP2xUS8VR",
-	"oJDqEAgxiK3MBtOG23su5hlfYrd5KeJTprRNWIIrWqF769NxqKEinNMJ1uUPHwxKK9en6wmAVGycycm0",
-	"OLGFj7FrjDKBAcMe2CBgK2y6Fgo5E6jcuzK3Oc6E4mF1zrAszXH/K6wOQvOuF2OWoKlUhTPGUkkzRZFW",
-	"IppvH0NlbWdwli1xApICHTwCyuJfn+qMgmUuxdJfLTg6nRgrpifmKu4OFLDVAMxtsHx7XsCTPfY9jvKM",
-	"pJb918u5OGH+5ar0zkARxISNpchSY6N7na6zcjxjomMgYlcdxxHCnYLKwR3HMInSxK5sfMw6Gpkgz7qn",
-	"NtVv3BSnYhuLG3SLZHMknCDaOe73u95gigdUGvbm9bP9L1kH6COVWYGrs0/XccbzS4zSmSg4gF2KTzk+",
-	"/LI/UB079RlfQh9vS+2rP8WDvfiUvXgGW3R2/uIZy6QSWHil22MvpMJgbxgrHsiBSqY85wlGDhsW/yp2",
-	"SYVpe9DVAxTuUs7nIj1lo4yrS2zThD9Y+y0dcqoajP1a/ZE2rMfOdFbOlPGgUSrPpJZEgU5ged6xBB9i",
-	"75jbEfYuKLyjF/DRikDwYaDe7e/v1/4PrcSXUqUxe8eWwrB3qKNgCzF+wPdjRk/6YAL3sONr0gMZ1nyJ",
-	"ryNDql4mVld7lXRqeroeye/fcrH7tZ8j9rf//L+zfqMFRw2rlzGeq4qQcDV71v+A7dAiDCUuidJVLxXz",
-	"bMzUZSlYecH9wMY8KXQesUHZ7z8UrM869AiJYoddaAhIy8ugNBMw5VwveuzcSQLONWANllhMqEbhsfZP",
-	"FQMC99XuQihxEkwRL6KjkIIX9Ubq29F1wBpkI40egvXqWBGWmErVTaOHYMW6PXauF5bTSkOiADdVmSho",
-	"iSIQYH0wJojuQdgvcj97KQgno5Z4C1BEoAfx/W+tPFsaweIemodSkcgZz6iwWsS4Yo6uIRFWSKXiw94j",
-	"sf8w7lJaCgZ0rTRcpcZVZdJYhfxb/i0Q1OdqHFf5DeWlCH06VFMkF9SMXRHMBo5ZOaRCIcZymkRkWaM2",
-	"ORDZJVWhMzDJB4bBnfaUFU8Wva5cfmDYv7S0S5q6JSRSw9lMUhYFv4b0ewRiDsN1tHJ4xd5JMQDZx5Jc",
-	"G0/paJrFiwGxo7pY6PvCh477X31OshDtG+VOoJxouAkiZ/EBktIDvC+JomtjP9Hg6KuYjkf785h0gM4M",
-	"rjGVE4U1RimR1rHzt//8XymdvRezMQ7GEVYiWzqHjlxwDLzyqN+3Ijd9DjPid13JCmD0yNMIVWxLp0FT",
-	"R/1+BG+gxoIXmaqkkZhEOgcqLNZ+Jaz26FvUKlvasjta7RM1IcDnqS9GxpcoCY00Bb6iykSYOJKpUL9+",
-	"YLBRqnifB9BsaMIWw0PrLUZt2RzIjPsl7/V6sds3sgle4yqcDFQcxwP1KyvLUMcB1Z1PdaFRKtg/ZB3L",
-	"WldZaHeg4HhHTmsihbLODxzpjzxNiByFwXz9uJWRkvC8iF4cRv3eo6jf6x/2j6Jo4xP9r75sf+IoOuz1",
-	"4Ymj/qP2Jx5GR/TE8eEhPkGnx/0e4cuP+tH3+/3+8dGaBw4fPqQHHkZHdkHXYEbOy92zZwQS/x/Ecm/V",
-	"XAcnA0+aFwORZdjUi1YTxjCXNeY8jyG7C4jk5tEER6vi0OvGVT1872PzwepoVuFVRH8VWb02kLqSxHeP",
-	"qN4wRC+5w+g0MJ9GqoJ1A3LS/9aL9tK98P7eUo2XAZYp2nOKUb2B1YVAzg9fjkBjBhIJc55J9UKoSTEN",
-	"Dcph0Z2Ph5Q6L2/K9oKmDZvkxSWLyH1N+A7Im5ZW51abH6gVG05E3ij7kmUNvg6t3TDroghCGNpsBasL",
-	"HaPxgESyYiqN03tsbz5KRo/R3eSDhUi7rhsvQIHeJuphpHUmuMLDsF2gBYLaS1eGMS/Vv8kijJ8wa7/A",
-	"QlHaFHA97UUeg5DlL3PowSg3hbiGSXJanBd4mLfz9q93YDh64xzP3BkAT3DETui3yaAb5YDJ7Or9M/Rd",
-	"zT+di0RIzDNTJ2hrIjZuI+ucl+q+E37CsNbT6k8Yml9AWK7zB9DhvdMrdtfAGgulqVVXd/aV+u2xuIse",
-	"O6/KqA+Ur4AGqlLkmLDwVizjvWyr0fau+vlAuZyCaXxqUSTOJxiWt++xx63oCVdfn1qlbPKoUdpBuIiy",
-	"Wo34em1kn8BJZ5R7VJqwRHyApvD29fMQZTRQT0QOtKWZddRRmj+eRaEnosxqebzMQKUikUCyItbIV4Ll",
-	"4S2kyZcKH6jDXtDLojbEtQm5TljsJhWfDtRR2ESiyyxlNSdr4/GHzR59fknpMss33jgO37AeDFu7I8WU",
-	"omF2L2jRWp4wG1ijrUe9ME6tHXfjE8bWsphZQ4U9DZRTNfA90LjC3qJmhlB8vdZlx5clXE0AmgtyysDR",
-	"GfHkEu2aaOQK8ooO1Ofh4tRSm52wGCtIGVSfYPJfhM8GGdOsc4nboxKRX8knTaOpdU+wb3uGgF7VkHUe",
-	"OocHGVt3oCw9Zj6Pj6Ul8Xpmee4xEb9EnulGt7bGOv78iX3+AnLQ1xP5EuKzVHeKtbHljOgSfzjwxhKD",
-	"iv4gMQjNMbZmR4c3kmE7smEq457p9hhCHqVhbylXjbQ0TSWiyUfRUE6EQY9tkmHnLKssQp2Ku+uFooKk",
-	"Og/zbXhuUcEMrYXZ6tG+8lKAvi38zXnQhN0O1FpwENuMDYIVrZNoaVYEC1hTt9wOcEgcFms8Wbik9/c7",
-	"0R/TbiOrRVesTKZsXepy6wChFGi2144RIiCJTaEs7vaYOwt2wysIMSIaCiOyMbKIgl8KFBI9B6n4fqlu",
-	"hAnZ6rc2BzRsC7pILHoI+sLSsz6ltnWt2aNx6h1WTKY1TFCI0kFvARotQM4DnmiThjrmB9zOAoyn3ISN",
-	"WlbupkacmJaSZrfevmwX8IPYyD0UiqFR/UwBjTfzLy+P+DivvBLTHYzmU3q1T+am+9d+09SfxkIHhqe3",
-	"Lu9aMRWzXbj5Br3YdnTwo/fJvb9jzXhcgRKIXEaMJ7k2BuZF981ll7LZpyJUaVcUZ0yMuYl5+K4sI7VF",
-	"wFHrlWlVMIHGRdktHQOgvP8VWGGNlE5UbK2gvkpWXjz/5qI29RXG5oAPzpdTj0zzI7qbfCb3WgSxtjaf",
-	"1IRfOp1ZuaW8cVrvTGGocjHQhXV1SXl2FxWrv16i+GYrDOI8giqBgXfNV5/GiJtajUT0TQ9UVTvVFHxp",
-	"IoQx2ruKhVQp1081fpuIvFnCuoV4fG/fqQrWbROY+gH3/s0bkObuS5z73i/Bz5R+7sbCf1Xx208lAD/J",
-	"bx+RrrqrAdpccNnvphQgJZ/YOar+uTEllvXPuUr1zNZB7fhIjsOjL9lIFqZbiSUTeSUUBYcYRx5FkovC",
-	"0zw0CzhsgMqWpx6whtA8jNpBJAuQZxsBMlCYWQfrWqBnItMT0IPXa7SvYaj3lGQH2/6ZVFLs+wbsCG5T",
-	"VFmO7AaYKYJF1S+/AsInenP/9AbvNuN0WAJCY0nFlvkG6GmPQqBkbVvTl3NxpS8t+BVbOrVQ1Ao43D/s",
-	"Vr49m4fYpq7HfLsDFaCgnVUsx3ZTS69IZWvNoIPDdaTio8lVNdJwvLpatCyfUiX+IkpewVZ8+DXJhUrN",
-	"fZanMjZj65qSVPU8G4Gz+4pnpRgoPWaxP/9BZZHYZHouYovCHXEjwhAnLO2JvgpS/i6eYEuVwz12b8SV",
-	"77QaLilFKtWLqsOjfvcUA1uLXGcO1W8kVnL66V+O2MUT1lnwXEk1oaC1n/7lIX5Jro4u2kpAYRuoi6lY",
-	"THlesAT/23l+8ZJ98eUX/f0jO53vhSkmCGVCi//h/pGpGo/Y4f5DEw3U0f6Ridj5/rGJ2PH+IdmeDvvX",
-	"rEOO+C6aegUsJCdERrWwpg6SMAQ+QFBmWJ/rtFEzkqzHmfQWn4GKfQcnbMwzQ5W1rqTOyINCGcfRT+SK",
-	"UgY52AdKqiudoScGIw7HWJKL4joWemVzsBwWuRP8pp8MVEz7gZ4hVWaZLTRGXUpTLUKPPaZwCHaIkRDV",
-	"rAYKDvYpi4u8VAkl2nC5VFR4ItCPj4lVOornGO9TuLUAhoBnEq8Vsww9CuRDBMUmIlqtpaoXaqD+eMaQ",
-	"kadlLgyh3GpVVCOWi0mZwTttBVXbrXw4mjV8ZBNC/W4SDn+MMmJtffjZbg0bx3V65V9rAbM/RbAw0I/Q",
-	"HxkxqdBZerU2IgEOxh2A6V+Qb7bRu3XVru+90HfQ9+/1gs24WjbvZNRIbVQnoBHF6hcBkV43Svd7ex6W",
-	"ozANy1EtC8vRR87CQvdpneNN5BKxcoXxM458FJhKK9L4KTvLPWT/y+W4cBKHTWLiLjSWqUY4gBUzGswc",
-	"NqfOeQOxyqKj76bkG0ldB/NMFz1zNbkn8Qt7qWG2qN+4EeNQsYWIkYXRIgXs8qCUchLKDjYvAfmziJVh",
-	"XJxgdNrhC5KJKD2ZFYVonT240rWGogfdCoHuwUw4QzVCuDFRSQa8+7xFGAFxBUe9ifm9ynRx8d3vPvHA",
-	"TzzwEw8MeKCc8Yk4MFeT31zPsjoDbAlDa6lfCqThExu7+yRjIeklxCPS7ogRFbtjrgR9i6TMZbFEqjgS",
-	"PBf547KY7p386Qc4R7bD5n14HqSzKBUqlUEZ/gA916mUcdPtBcVDSmVaIoCfUVKvsC130QjMFODEgYua",
-	"oEm7JquNPldXIjeYnNBW8IPxOitdLbY7bC8s+Lfa6B8fu/rTaNQInKb1Cili0fZyheas55GLPGYrgFB6",
-	"vplUKehqvVikwko337UiGqMK4lmljWoWJPatv01aGqaqYlgay1bp8KKFzFlVwIzNdSYTKcJldWU9Wlp9",
-	"9dwmJe+F5BvNWi25HdH/5BdM10FvIhNJkWslk6CCQri55L1q4TLySihhfKo8/HMmilwmrn1pWKoTH7lc",
-	"C1am0/LD+/8vAAD//w==",
+	"7L1fcxtJtif2VdKcnRDQUwRBiOpugTERq6akGd7RvyGl1l03NKhEVQLIy0ImVJlFENOSYx33Ze+rXxzh",
+	"1137/d4Ix4TDb+33vZ/B80kceU5mVlahAAIUqe4ZayKmRQBV+T/P398558e9RM7mUjCh1V7/x70poynL",
+	"4c8zpvPlo7FmufmUMpXkfK65FHv9vXOWSJEqoiVZUK7JiI1lzkhuXuFi0tmL9nL2vuA5S/f6Oi9YtKeS",
+	"KZtR09SMCz4rZnv9brSnl3O219/jQrMJy/c+fvwY7c1pTmdM22GcFPklO328OobXU0YS8+M9RXhquuTm",
+	"6znV071oT9AZNJxuHMp/yNl4r7/3q4NyFQ7wV3Xw5s3p4z0zntOUzeZSM5Es/8CWqwN5RJKMM6H3k6lU",
+	"TJALtiQtSsz7hCtCyUTKlCRTyRPWJnpKNZnRC2Z+MQvGWToQZohMaaLomB0TxRjRU0bknOXU9HJPkaDP",
+	"zkC42eJ+lfMNxrpvBltZd3r1jImJnu71D3vfRmYf/Gez6lqz3LT5px8e7f+PdP/P3f2HnWF//92Ph9Fh",
+	"79uP/2HPb5fSORcTXByhdF7MmNDNO8T974SnTGg+5iyPCFVkLpVmKVlwPSVcK5IXQq3bxbKTm+7mqe8c",
+	"hn1WiHVnKi/E3Z6oj+Z9NZdCMTjh39H0DLfffEqk0HY16Xye8QQOwME8l6OMzX7zT8oM9Mcte3yFb2Gn",
+	"1ak+p9lY5jOWErUUml5FZJFLMSFmi4nMCSWXNCsYkYVWPMXziM32ycy9OxD/cP7yRUQowSNBFlOWM0KJ",
+	"KGYjlpMRy6SYqIhQQQpxIeRCkDFnWWpesSeOyHwgciomjFxymVHN4Nf3BcuXxNMCvDepZIoIqYlZmqW5",
+	"Bx+jvRMpxhlPPuvqwUFhShZ5YuiP0lQzMpb5iBuqCD/ihW5RJFIkZ5ecLVhKaJYzmi4jQgcCfzJXQBaa",
+	"UDLmOgKygC/D3YCFpzNm7o+720BjlOZZRrgYmOlPprpt1+MpDCNl4nMviJYXTJCMJheKsEuzfSqRc0Yy",
+	"DjedCxJf7bursw+/qbizB1TEnASaPclzmX/OYbuOCTM9d4iZxkimS6LoUhEpsiUZAHcqHxrsESrSyiYb",
+	"YvEx2nsh9VNZiPRzr7uhTKk/juUlYVdcaRjZK7rMJE1fS/mM5hP2uQcIK8quEsbs7VAsv2T5PUUSKcZ8",
+	"UuQsJRmfcRztOcsvecLeCHpJeUZH2WcfcEo1HVHFSEKFWcmR2WuaTFlKhFxEfg48YYbFq2mhtSF/qVyI",
+	"CAhaaww0dJFzDUyfK2CFVCR29sq0mNozNmIJLRQDPuj75mogDGGlIh0tkefXxbN9L581TdY+fRBIcjDf",
+	"11I+p2JpmY76WcjEPeVvT25oJ1dEXrIcVsCehNua7htBCz2VOf8z+6xX8zlXiotJVLLLyDNBmRuGIC9Y",
+	"SkaM5oa/mVWpTfrt27f7jwo9NaJLQjVbFVji7+DtGFkFFSQGGhUTqnXOR4VmpHX29IR8/c2DbnuzWF6X",
+	"7XDp5rlMmFLmEj4Rmuvl51zBtyzL9q2UwsW80CgFjHJGL0B8LjJG5Di8jsd2BVQMZFERc20HQo7HTKTm",
+	"ioL4UVLwImOWbb4RqpjPZa5Z+pylnL6G9fjcIgVciXuKnGCv+2YU5nIYKiRFTS0gNEnYXKsOyLS2DzOE",
+	"R/C9ITanZtlg7GnKzTs0e5WbBjQ30ueYZorVR1K+TfQ0Z2oqs1Qdw0rCGDI21kYuJBrUGDMkJiZcMFBT",
+	"xrTINGmpKQp7WYasXwp4cMb0VKZwFOfBOH7cG9HkYpjQLBlmcjHUMmO5GcFwjoIdu0qyQvFL9txpj3h+",
+	"zemgeq+/l8rCMIrIqDn4wGG3GzUpmyibmi0v+5xxMZxTpYbjnCa4DD9ubHvrlj/PTKZyJlXCUqo0T7he",
+	"Dmk2n157Gh/BQx8jlHDMpu/4npH1hnI8HPNd35xRkVIt8wZ9+mTKjAS5MNo0GVOeFTn+i0ftkuUpT/Qx",
+	"XgU9Zbki1Cgd6SVXMl+C3qbZTF03FujnhdHqYDxXp/jSYbm+NM+p0aELwd8XzP5udstOgGU7z/pqmKu7",
+	"PQrmKGfskmXKKv346IPwvd6q5QVfzIfqfUFzZJSfcP5loTPO8mEi5YUapnc2WdeP0gUo+JbF30lfeSHU",
+	"jvt9yXI+thxjlRJUj/2HXz/+YLTu4BUU/miektbpyfcHJyfft8mMLomhrYROqJEojcQ0EELOuNFQQGfv",
+	"kMeWCve6EaFGEiJvzsmTV4/I+dv9b4++Js+BCpNvu93u44FIaMZHlqOE3eMVy+hI5nBV7ylLvoliWoGo",
+	"JhfWGnUHK/7RfyNH/8QSbRa0ZE2vZMaT5Y6c7QlopZ6pGb40lnnCIse3VMmxdmZRq1P9dIazC2PZ4u31",
+	"bGKLlxuYxBZvNbKILd6rMIjd6XmFgjeQ661GUCHW27xRIb03orDbUNId3qrRxS3erFK5LV7YhcYZGRfp",
+	"XJbJBUvN7WumeIq00oCIrSdfIEpeO8yPoebzQ7hRtaPRdGDX3pv11zHaSCw2E4L6OamexNV7WNmz5q1f",
+	"PUbhBdu4h++aqLA7HnVHiOITAQ0Z3QEWuHl3PA/odh6EPKDT7XYPG87YI0GzJeq/G6l9lV6jxX57vwAI",
+	"evpaK755pn6goCv7fuOKFSnXTy6dHrn9HErmUFONjSK8oIqkUrCIsM6kQ+K8EJ0kZ1SzNI5IDNblzpjr",
+	"ymc6n+fyMvwmZ2aYLI07qy6eyIxANrgADaF1ujcafkE3p6ah5nZqVJRqtq/5jDU9mzJNedZMP+Y01zwp",
+	"MpqriHCRZAXo9dRZ2HMwLVElRafRYxVuGzX3CScY7fnrZ3tfu4/P5GTHXWSXzsG6FScLTssKK6vNwLbc",
+	"NNYTWpjhqTWHBw3YylBYrsAggmaGvrUqwB12QmZgp7VkeSCSnGuWc0rGuZyReTHKuJqylEwKnpqXG8RH",
+	"miQ5S7kGQhMNRM4mRWZ+hP6tcHn+8hVYFsg8ZwlLGTSFm0tGS3AN0cxc2ZTMWa6kGAjvf84YVcz6R91K",
+	"r5yuGRdO11sVFECK2HF7zRYWGllsdaWfmsfJYsrQ+pGYxkkiiywl1q7s3oXVEiQ2vIClsdkM6AtWJsYj",
+	"GaNbYjFdBkd7JGXGqKhem5U5g021+UIF4jAcBTMiw3jApnhMRJFl9RlMqTkqAhyFC4rWKTeRZopvWkFL",
+	"PuoFm+W9+nFlRs0P7EfWgQ5mdRxRyhLnpfQGAjAOLDjY1eGMBxaC1cXbhltUREzcqWC1g8bQFdM4lZx5",
+	"yyPeOl1azRI5Y3CdGimoMvfGSCBr9hEABO4ZszUzRhXcWVALw6385A1r5n/lCN2J88sUlbekKnvYpdpI",
+	"dst1b0JfwAGwrCigXXPQEPskLqU9w/NQ3IujgYgDUc/8UpfyzHdeUDN0ikthvvOiGTSSM/PLJRs60XWI",
+	"JviIxF5Sg7eY4mlBs6GR1swXViRT0MpMCqml4In5Jc35WMcdEnxLWn7NDBG0B6ZN7CaAacz5k7U0hMWc",
+	"m0RnS+IbQQ+LWaWFzC8M0wS3e8d1CB4nt0uEasLFhCndh1cEW3i4jcrkvOQNeC2pgNN8/tgb5MFnXcI/",
+	"zK8U5bh7ivS6ZCaVJobECz0QTirBPlRU+r7fMqUnNE8JiilwcRRpKcYGIv7dk9fk4PLwQOdMpCpud8hp",
+	"5aqTQmRMqZB0ZFyB8YJQNRB+USN7F83L3r4NV2VsZAoj3Ahy2CW1cQ4EOFkj1w82UG5VC4g6fpsz9C6Q",
+	"GsFsWwuKMCJwo25S1Uoa9JFQo7AH1agFgQqx5pSG6gQ8FZzRUmuAkbhTZG6qOS7BRbUkKtq72jez2L+k",
+	"OThfzHTg6j7n4pmbEn7h5gWfntHk4uX4KUwNvvj96vzg++9ocnFSmSN8fXbu54mf7WTP7Vyf2KnCj6fB",
+	"fO3TOOkznDN897KcOI43mD188RiXAOEn5gij/ayJPjnbXBI+aERXJFj+Shjl4Rp16bAb/O8ac+WJEdlA",
+	"empgFwu5r3hqjrF/CvU1c3vhRFzSTEWk23lgyEm38/Dhw2tVuYcPH1aUuQfNo9K5zJ4Z5qB2tN6dT9li",
+	"SnOQRk0j6ChWpHV6/pJ88+033f1e2zE5D6kZUcUyLlingac1qVrDKZ9MtzR92DcyudjyBdh/tuXDC5oL",
+	"Lia7DMi9su2IalzcDq/aTm0glVlHlUVr5Ny4VWdF1si7S+JuxKGW/8g0oVknIicZFx1yMmWzDul9Q1qH",
+	"D789bJOjh/fbfRIf7vdUPAA5FLFqI7aUIiU//WvP8KGWHXf72Dx6X8XgvPTP3Cfnj49J3DONEL2QhvUJ",
+	"xZLCUA73mGdk0CKct2MSn+0f4TskeCUyzQ8EHclLRn4DzzsvMwiiAIZbkL/+l/+lhz0f7R+qmIxlkZPV",
+	"ngfCd30Ydn3YvYqJZqLyivWtwtMA1rMs2HDlKnMxS7YX7Znl2Iv2evjJTGcv2jPjMb91r7Yk7WZTD7EF",
+	"89d991fPf3d25P46OvTPmfbNyShy1WRYeDmn7wtGLthSMW3YrJI5aZlr/PVRkZdXe24oh5iA/S+Atj44",
+	"7G0FbR3uv/vNf2iSsgFwvKvHnKCVBaWCDnnr1KWcUTNIVdX57MPUHPLMSH+JZOMxT7hRNowAWGXSKkYl",
+	"MJGXNOdGto3B48lmc72MUPLDG63QCCOYad10A88ZsheR2OpFoFrGY6NORrZdcLiCcjkQRrmEI1Mnjkgm",
+	"hlQ3ajV2uoUAfdA9XWUZmyw+tLTwrfyWBIaMjdqZe868A3PazXfQ5DcId2Z14qeCzGTKsn32vkD7tcxT",
+	"lveJ4Tg0Jz+MuhEZHb6L7BdDmfMJF+QH+O59QVMjDSTuuYiMeu8q/uvt3BTWmnG/afjrhYCTBtZvNnGE",
+	"knpqPjvF1IsEW1nbTb/uqDb1634jM6pzfuU6Dtc6Iuqnf2v94//7f/7nt//Y/uv//H//9H9FJJcLZcSm",
+	"4Dlc78qS3drabV5YNLNuvg4W3kuVv/EiJUrLnW5GOl7twYmsJGWTnDFlVnCcM5bKWUSE4TFkHpgQAhcU",
+	"AnWGlyxXjeIqRFUE/mB8HsmKVw3N3ACqjGZneP7gsNPtdJtNyNY5jP1tuoZP/IMfo71xRieqyaSWaEXo",
+	"CABIOBALDkcTkJDOArQ1EuQp108zOmm6/1NGLzlTGlWy6xoCJed8SnMwEPF0u4iAKAxwaDTeeZ9idSke",
+	"c6W5SDTeX+VUijHqEZvibKx55tqVsXK6uQ2gPTfbU+GnYc4u+fpDZbVv91Dz/TC8vTL0w0agiiG51438",
+	"OTz0MdoTTdfHcuVywUgLDqlRiaRgTkEvBOjn1y7mXPJG/oB4A4/isNJA5KYrc+J6jcgkl8WcpWS0tOSY",
+	"C+SjipecZXtwk1naV2ZYTae64oSuYy75ZAqiTEhlDSfQLDeKLAymVaAua124Fe7WvqEFGIxR183rDB76",
+	"GJgqVLqBPvqlT9kltx7m1vLgqh05ofm//9cF+S0RZAHzJiqhGbvpBMBHce0M8Cn7vLkLQwkknmbZy/Fe",
+	"/4dtSMa7ugT6KmcKdkoQKognuP6+RcGF4+g5zJk9hmhwRt//cHuiVRNSG6IE3eLjA2vYPPgRV872pzJv",
+	"pakutrsl5/ho4P6tTuPNyZvnJJGlWlWabComHW/AWSGQTt4ZbkW5vrdPewpm2dm179nHPkZ7eJiHCRUp",
+	"N8LFWtLkn7iniEpkzqzhNaaFlqh2ILKcjPmVIdDQMPhbM37BSAt0EHPq0B5qligQB9a83N6ajCE1OnGj",
+	"bKJlbq5SXDLRbIP7vVzYzhEqCpc8teKLMCct48rINZKoYmb+ES6kNQ7oTLNw42e1/R1+619ZvcivXZwd",
+	"I4UZUwsMCIIRG10KNmm7PXiLATIObCoczRBM4Ejhb3VUtu9kKqViCsi/njJV6roRoZmSpcvQcn48A1SA",
+	"MeSY0BHQK+uNKg+i1ZRHDM9jWpuVn+6tzysYKlUXyNig8z+zXA6nVKSZ3eTVw2UeqRIDhSEeNsyTLFjO",
+	"yAWba+ssz2VaJOYacTHmgmvmzucxavVuXQQjNJeKXQ9lwLhUJOBeWluVzaJqMK1Tuy3tc7JVeKqbV7+J",
+	"xjiRvelO1pexplmvcpOKDlll96ATVd0bpgPvNAmUXi+aeYuAl3ydwFHSV881ooq5o6LsBdaIFWWq0f4J",
+	"4eviqbTu4F2gP2v89TOJ/jQ4pKAHba9MjqjijYCQpXWmo4CgAmQsF2Qh81Q1Er8bmWacge16zlzMZjRf",
+	"ogo55zlT6/VtbrQgeokUKWFGjC5v9D1FrJ+C0Amr+QikYGsXcI3MF6hmVOlhCJ/bni59H77VTJoyCk79",
+	"CkKSakNaHHuiOq769Zs8HSt2ftgBdxoihEEFK9w0rWCv157zZ1ztim+78QHawbZXO0p1AUKwKz1M1lij",
+	"0UrtJD/zKJmXR8jqEGa14OvO9UemaSvMHoSj2GatUbfbzUz9UrAVZbRMwJByOhFSaZ6oY0KDjwAM80eM",
+	"61qEMWkJieYgmRtWnkupQSwY0eRiP3BJ2wfQG9qFR5xbGlWETWFhBWQGaLRiBiK4mRT0i3zW6zw31OiS",
+	"um93K9MnIGw5Bvs2v3Rtx84s0IwuQr3thk17Q1ajmSmnk5uO2UMMYC+bAeCH3e5Pf2nVNhXslZWlbh9U",
+	"Pt5YH0eZ4cbzQelty30P8NbDsOfmhAPZkrgXFAbvwws3nCnKW+uMOXVTB6g/x6SL99kdtduAgeHZqt+b",
+	"YCn9UP0hDrZpzRoGB3PldkUrBKLxHAYXai1BPfcWg7otCZCnkOKjQx6VQCjwo80xrHiItp/42OOQAcBp",
+	"KF0ncL9Wnzac18KJYNiIwt4WV1OO+RW2euYaDX56VLYffHvmu/KTt+xxV3B6xSl4C56+ildlu/bGlGcs",
+	"HZYOv1Wceml6wtBSdBdw9MfOqVIhuk7mHj1WtVOs9FwXJG7N3r+brf02jeXXRCddTzN3tSDe3Ei3amW7",
+	"oZnMavVbmhA+n9od6rcNKmr13G9QWZso3mOeFc22MvcLGUNcBGRa4kbRhDBSLqyyS1oezvhbSw4Rg/P/",
+	"/K8ktU20j8kh8hg09nRuHCe6BdztSehj3EEmvs5w3mmAQtiAmE8KcdnsMnLCOWJIrMvM8jBVoUo7kOv1",
+	"kl/OMLEFa4pbXMPjy3eaDtiKx4mKCRtiXA7EZl2nWJePNvxU8ZtslcQvnEH4fmAgsj3WxhrEBzVfJX/w",
+	"ttPI1mzJ9jFqlb1a1e/cybEcDzqIyOH+iCpMxLHiUzy2ybqa3qxf38ql3OynbTw2GxcwyIK3wxKWF2kr",
+	"a0Btuyp+pAd2Tuujg+rHeDtLz2t2pRssPGh1Y4jCt4H9ORcXhGoyknpKmEjVsYP4p6VFPZMLphBRP+WT",
+	"qfnbIgBozuyrXqqv3KXbGa9znwMIreyotuP1i9W09w550QANNfzHwjxoHeShQpQHiVOwKQgL0hgiE437",
+	"CA3Fcww5bMhMQvQNFWRKs3EZvqhp5hzANrCgivuI28ckHrPF0F8+NRzLfKh6cZ/EhwfqTz30xoDLBp1e",
+	"A4E9w7CnVNlAAr94MIyKiRICVcoe4ip0s3GSRg5oGtaWSoRd/se2aYCvvHUN2x+fssWZb/6pzM97oDb8",
+	"ntFMT3e8q6XA52YlL/CApMsth4z9vvzDnhvCGb5cP322q6ZDF9DTJri+DWylIoheiZzTN7LbFTnMXE4U",
+	"nc0RMxDAUL8+2gqF+q6ea7UbfX3/YyMutcy0+ipn5uDfmGIGGtj2bOcabwRm67F6sfUdGBXYXIhjIuSi",
+	"zkm2k5Kq+MWNWkL5pNEsYE+25wrlkp7Dm/WUQNcwhnpYsRfv3Tgaj6HFVO4osAawTYfKLJEVodEMUcjx",
+	"SBYiDSNKIxJncmExxYZ/xB4l3GB/xbeb7ZDrIxO2t0Juk0JkXTTDjsYpCFiwQQxOinXza9qgZ1QzPA7b",
+	"ZVG7CWIaDwjwDhetiXHT5kZAdBy/dKx/18tzo3ueBprhpre8BrmV4aMuwgbpjzdjpdyDjXp3ec/KFhs3",
+	"soRl7nbXXk9D+cEpZBnNJxBra1psEiJWr9FNHAnKDbg6pv/+XxcVER3THaBMAQGe9gGaZQ5n6H6/SaqU",
+	"uikXR9W4yjeJ6XrMNEvQrylS8r6gcEysqxM99RFivutIKwUZZeeaxEnONU9oNgQLRExa1CMv2puCnmtb",
+	"5FpJNgf0nZ6/JIeH3x7d3+8R947Lle28hLoe7Hc1TG7qgqpM7ibDcWsRkeWNR7EuIcfv5cL0sUSAi1tc",
+	"cPQtpkuz4p01+T2YjSJrzksQzsoqmQRfMsPE+ZlVvWm2gUw2uBJPT35P/tgjfnB4/iJyv3P/p7/8+z8f",
+	"nN+4s/drO2s68RE57H5Sh4pPZrRZXPMn49//Ge6VOxx4paqwrBjaGQJKwIgPW8Z+BG9tr3Kem5e+g3ea",
+	"oRD//s8WDyeYIXKIQmvXcWRBkAJEsKzDJbYWU55MsUV7RxAwfP643WmQHAy3Mdu4ch+jdXRj9ZBvzHDw",
+	"TE54Y/Qwpji5p0hmngCyFSgSTotwKsRGDeK5dyvsJMa4hArXZq2p5+YrRZAdUt9Ylv7xulimbTzx18fo",
+	"QFi+Na8aGcy+soOCYvsYLbdOkWRfqfa+hkwGza0Yims4QTP8Cb9kzU3N6NUQrsKQTthwKosmwPYLzyrt",
+	"rUmlhXnMeX5TDMWO0Ro2yceqvdy6TnFkQy6GY4epW1VMtneP3cQFFCIi5Xwr+JJ/+6V9fk0ClcBhFG7N",
+	"dbhMN4oa9tHfvii8xuvXsvmY1PGP5YlvImRIZG6ABEO7yvaUwlKz6xJkuWbXj/WGRpQb0EVUIz+RLFbM",
+	"EteYq6skcztOHBpS3q2K6xgP2u08fNBpIFHXW5W3JEVGsMykmFi/Y+i0cBVVlKbLEqh6TIRE8ekWXI7f",
+	"fvPt0bV5lm9E17ZXkjcQvOb0WBSgDEZJtWmAIB/fgkJxJcSkzOiSjFgYCuRMdT7bJhz2dnOKrJ+JWNpr",
+	"00wxmwijv16Nl97tW62SAsawxWRJfktGXfIbMjr86S9XxySuBLfZ3+1PPoI7Hojqe+bf3k9/ufrp3zA9",
+	"ybdHX3+936ul+sGWAZIedLEX7fl2tzSKw5yeudaCTy9di/DdH8tmP0Z7L6GMQBPo9e1Uktx6J0ob+DGY",
+	"xP0ZdZXMlhjuAQnk4v8Y1+zg21YaqxrC/yPIsYe9b5oF2VcgE++KNL4BtijlUPlijfnT/XoTuJJZg9lc",
+	"r0kUPC6ybLhWFMpkcrFuTJnTI1a95rJuEL8G0LSiBOFJKsfm2lydlB9jsITXYlJwV28gOcyZnGN6me1s",
+	"/Xh6rpuvbXX9SG8mN1S2NrgoPcvMg4vSsPF2czeGbMNDNj/hQuZpvaMHX1c76kbbHBZHs4C2Kr3nwl2h",
+	"+uB7um+RjACUSA3jVBqpy7tmbcQKLUebJJimygs7nEq/AI17+IlOtL9Nz9Qmf1S4IiXy+WZ+xdsJFNqU",
+	"wQzdXdUEJoVaB2NetQ2AALo9VBGfvxFgEV/dHZ2IyXlvclLO4M0mG8oa8GRTUMqw5mKxSMXKQtQnV9M/",
+	"3QyuiWdZGfjON3GTvb4aIILqhBFs0irQcSXRLcjHmOi2DGmxNhtnUDffLKRLI1HJqklaMZ2N+KSQhRqa",
+	"9+Ob5kUIPXJbnOw1aVNiSD82hLHFEYkhT1n5kV3pnM6x/CbkPYWnM4k5Tt2n9+YnwSaAr4e/JczNaCdl",
+	"y9VpD0TLZkoLo2Mbl2zCL1nFZdEH09ZABNkz2xGJC2HdtkPnAY87A3EOiXWcR9WevVJATWieL2HEsLXg",
+	"/x6IWEg9dEZ4sw0xIIBIjNQWD2Tcvi6ldDMUfOUxHrj8N2qC7rngnWGJCm/0wZRogAVVRI405cIHucdj",
+	"zrKM5c0h7DNGxXDHcBfnU2yyIkLtVzkmHpYUREJTDOVIr0/zUstUumobNxLHFZ+Z9lUl1UQjHsJVwnHX",
+	"KYgCNVecKQ1N3UYYDE8bYmCaE69eQoCLi5v2i1rfk4AKrJ6IzTTVig270dS/JRTAZt+/q7i3Gtfz9IQ8",
+	"PHrwDbGV/Ah6Z9SqZ3id8xNrMID3CUon25TF3CdliIBnoCLRnBhrTeaUpxKg9jTjtvBhZKvvNZQxtNng",
+	"txQRYKpPzcuNZEuUUYtrqxOSOcUsTQ3AbHjAilWbyhvG/7hvxe79U8NvtCTvC6ltqnyk9VjV4UG3uzYZ",
+	"elO4lunn969fvyL4ACRuqSCXH1Sy1B51GxM6aa6bEpaeT2WuicJgKUdl3PkxrTQOVdtKknXX3puzU2dP",
+	"WTpsSdiYo91FLvrAsy4Ym7O8b5/p2xMSW1K6XnOs3Rr41c0xiCjZ4J6sHByjcm91QV67PPfcFe3srA2F",
+	"aAJjmvdrR75PKPmH85cvyCt8yXA9iWkLZbqMSHyQccHUwaDodu8nAv5h9lMis2Jmv4oHwtzNk/PvQYqL",
+	"8Qluf+3b1+mM2ccJ1vP19chRINi8zm5eG1f2zGW92gE08zaUmqIy1Nniwu2COGg4eiqgdLHYh0wlZVk5",
+	"SkYZFRdhIrQguFszyInersnGua1IiqkGqkfhUyCBtw7za1xvYLFM7Ro8M5NpU/1dw7H3ocpzjAcJvpAi",
+	"W8ZkMeUZyrNBTWfiSzpD6facJRKiL1rQiCJUqAXLyYPufZuJKah8HNfsx2XnVnaAjnewGZvFeGvfd59f",
+	"QhNloIlaR8tp6gQ8RVpTqd28VJtkdLJvy0hpW+fayOETSbR0cC6oJ0NvkNrOotHLjaxYRL4+2pQMLFy5",
+	"bRfKd7QZaY6uiDVnDurSnOvmGs7zXKLXl2bhoUENtOLAOTbny7SFmooEELDGSuGuMIGRCTA6ooQVoX3W",
+	"JQ0pcafHJDaHbMqyNB6Imu4LcgwGCke2hYgUYsw1grBkTlQxZ7liqYV80YHYqtuOm4YLpfGFbXgyrR7x",
+	"YG0wtNtOfi/acyPfehuhx1eVBu2XZ2G79ru3vnnYwdqZ2414cDEs1AbXHV4RuB5mP4VcNDvgMjoZKpZI",
+	"ka5xmY5pbqtNjNiU2/Tj85wbeSUi1AdCQ8YSCB2tIqhsffI1qf43Vkf1MUarQUNckwnTaEmBmbYKAfX0",
+	"zYpHhlqUpUlAs4+AAXlKGWGOLtpeI3XC3qx2/UpajzEXZH/f0eB9IJRFnlnGeViRDm3cxrZRba7vyG1x",
+	"8/UvNevVgL2gRIqLwGtZP62ztFjNFVl1IvMccWXtXapFVOP19ld/W9nRs1A/q+dEKBV7l/Ttk9KV+iXa",
+	"zboNgyyym1XW22Ct3sWhl9DGqx0U44OM7mh479C0UngPkkb4zyHxjEGawO99VHKz+WYLcPn1MOMd7eEX",
+	"XKQhQ7W+PatOsGEyNbLp9rTZ7+KJbyj4EjjniWvSqAxm6WShwBC9A7ilwonXpAM0v1meZQXfMWyFLazY",
+	"kF7rmmhl5HR+pNuPz1nQ7b74beVCf33UmN57x/wLcCiHa4yVir3fTFNBY2AsPSZcmNWBRIdGZsV4YihN",
+	"WCFR68e9nV/CjMhmK4Pz5y5ffZFXzkcY3O1XNJx/kMNho/OjctPW0Poi008ZSz9DIrQdy0qGtLIp1TlV",
+	"w5nM10AqN2ZJe0WVMtJFrDhUp7BJQSv50gC27YLMNu+znVc9KZof4DX+pDOfh3nHUB+LkkpZYnMmz31y",
+	"iITVJWNwfqcb0kOsBwMHlUoBF3wL9VITvk1+fVyZx+7pDWLbi0pKwSq4eLcMd35swSW8JqVCbZgh+gC1",
+	"HJ8uaWv+Yhp85F/Gz2e2iY/lFzdBAtzG4n9qXH6QJUBLV6TOIyUxONc6acvyL531e9W4K0XGvucyK9Nc",
+	"7kDdLFFdY0ywcHMuLmV2aZRJw114Y2LwbfjaStYG3Og11VkdsTrc7ylia0ZFxBxt/1NYerBZM8ttgatr",
+	"gCC+FlalRujmCwRN+0kEBTPLRW3eLrFzFaO8EIaMlyVKbiHf142QH9tUV3HFhnYtqHKDkI25VJqlZE16",
+	"9x3zkZ4VAmtMNZxUN4M1cBdtmJF5p7IAbnQiTDX3T0hpE3W5dTUv8RR6/4fzly+gVpf9fHL+PdDIm6Y3",
+	"294jWHq4d31nh4Roci3s9RN43u64rrMiAHQ1GCzBQL99c67WwrWwxt3ylFVyivmV8+d0fWhIOIdycaIy",
+	"3+1mCa4QTg/8nOmEV40zyD/nLHf5P7a3aGy45dvepEZYwdYLuFUdu1vIDHLH+f52Bc5tThSwkkhvzerd",
+	"NCjoBgzyc1LLkPhtesvHBnwKZfPhTnWL3kZyt3oJjca9DC8h+DgA8rn1dXT0sWFMD3aD0HrauYFSlhNa",
+	"e7w8tvOOqduuKNIQ99YoS+9gYVoRZK2JZUtcaMkib8+ym65NfHm4jvVvAYZbY0GrIJx2KW10PQdvSn0S",
+	"zG7jct4om82XXDK4ipX7sat+ZbGpDm/KUl9Ev1TVMcX+4rbVsI3g/GtKmDfiJqvO4gm9xNKLkF8CIbSA",
+	"arwx7Pkm8VpV1a5ZUbPU65OqrXmbxSrMlCRGhfQl1dbTm9erGPRPSra7JalaAw9/DX5ihxkl8JRRhONX",
+	"L89fk4PLwwMUPA9+5OnHg/JJhUWEAUjtgNWt8lg0lD1ug2NrBXY9EPCarTeas3GQmwNdjMckriFfPWxg",
+	"eUOAdpMJ2Fzse4rwFPzlmDUc0OljxlLIDqgI39avcUuA71tHbG9WkavgjDvxat0GX7xld9cK3PwmmXdC",
+	"5+c15itcFOtvlDlBmI9ZcQfPgFa2N2zdQvnCCDE4JK78tFqS3GYP9OEXkEGQiy3LlO3sd6tK16HEsx1i",
+	"fhcsfv36hej8qpOxdk0adn+31BmhaPG3qBpsul+NcYg7aQPYu7qZYr6rDltP/XhnQZfniURwuEcmFkL1",
+	"S0wnLE3fnHJv++mX1UPSGRdbmneho7NCKIf3xC+wgzNsH74C84vyxUTgu0fYkRlvmaerkX/++z87MoMJ",
+	"zlpnvbbN40eevXxMfltmUwMS8uzlH8lvy3xnAxEDymmo0rgPzZw/Lr2mLu209lWkAM7cgvguPZWKDYQv",
+	"4+xR0WNAMMcIjrbZk6F5dfDX//K/Ya5ED72iUFR8ICyUegUyHblBQfSar4bKZ0ZwUxYd3WLvC5oNHDI9",
+	"SC7mUHYLW2W5fVytMNqvvxANRLkKNMzRbkijHcGxK8oJIpTN5NHuk3ItA3BnXggIa6xnmzYsCPJjI8ys",
+	"BHaxzKzryvpVcZqm/71oz3UIGQAqz9dqOG55aP1pe4Ttl198Z3o6TyvfPYMuMdtn9RdXEPo8dadYUF3k",
+	"bPdQU82EHs6oTqZMrQd04i4mMk/vQVHFnAntHThK8yyDPXC5wafNTkXXnZrS3oOvG8JRfv9ov/fga9Ka",
+	"squ2D3qjQgrIAglxEv7ymMGAc49PBEoVG2EEq2bKreWs9TkoZlTwMTNsslElepUb5otCdkQMPwdX7JvX",
+	"J2jxk2ZWRvoB0RxRRtNiRgVgOjEzJNRqmsqFWuets81W0eCVckwWagyCBB/xjOtlYxaDOQ53faKOjfKz",
+	"2Y/hWsMR/OoCh1ZlVdjDRvnyzeuT7SVG384Q1raZpEOFbowM0w72ldHRPYUu+j9vqp+5qofxGRuaVxrn",
+	"teB6muZ0QbNNuod7SuxkGyjfarQONEcWltsQblnk005UjkB5tsIdWl3lcBVWLnm0QmTq16ZRjHAE7Qbp",
+	"U5R7dwdJ0NPP64yVQeMbx/3p0JvtIUI7Z1LZimQ0UogtU7BsrH9TTRLTvU7D8kfT9V2Ov3EHnOP4FnN9",
+	"3CDZ9abaRHdhRC9VzOtqFqqNy/bZbOkri3oN0ih4OFzez2pY/9RFBrzbKmorZ4xodqWD6GrI/pcgvook",
+	"U5rTRLPcpwjXdBSRjAtrxDPCRELznNOJkYx0kYta2rJedzUdU5i37E+DwVW3u2/++635z3fmPyfmP0/M",
+	"l4dPB4Orb56++01j+rLX8oLdFN9wA6P49oLbWkFGGSVwB/YASm2DhQAgVWukDJbkTHfI+VQuBAE1ypyV",
+	"Y8K1EWmtCRmiDsFnsqWpCXuMXLZAO5Frc5HBFt2MJ7lF3M7BEN65BmCnxEzqVJOF0RkKxUpo2jHIucJZ",
+	"qdGDYOUzWqRcE51TnoEbQi4Ea070NwuwbiOWSShNJPskxsTTNhIamIoLhZY5iUvn92qsdGcgbJ7Qfi2F",
+	"YAVad09hrR2MrI5Lw0dsNGczHppJwVABxUA2GJKFs+IjXKkCDfKgjtYTqt3aSb69jGXVk9h4+HImbpMf",
+	"j6hihvhdm6DV9Pude/iG0M1rSptmvkjEFkhZW1HCUCapm9VtCuHuF4zNzdGfcZEGtRO5ItrMibQoCQJJ",
+	"iVuQyAGPjW6AhcbAr7Zj3VefFGCrBX7ln65UgdzqOGIDrnDdCnXNC5E0V0l/nResdNkuuEjlgkxZlgYl",
+	"0Q6jbrfrVgSz52dY8E1mKVPaPgCVHswaN9ssLh1CfBfAUAgsvxb+0FxItdyEoKSjP/n+4FUGGC6ZO2PX",
+	"WKGrd+QTQPCfBGg3Av0NPVSiOeOoajg0aAAvs0Wk7JKjq6gloGb74brMEP6G3bSABcswxHV9tivXg7/C",
+	"UIDEcIYtRANYP5i0WZAQSR/2vXb/X4UX3ppbTWeZBEPBOqyAP6KEWro0llkmFyrEbbtGwA1lhNea4bRa",
+	"FziT25pSqwM/t71Uvz0N+qz+EthPV34696Op/vBMorE1IFqfAU25ayArMxS/mWhWjLlF5g6ZfwPr6nPl",
+	"QC9jH07i8iaE1HTGMTk3PKzWZNjmYhhy69UHbgahbS4dBJgPt1v37DQ25UEUzHBSm9VhzHVkrro/qDcF",
+	"+uyeGbPKY5pzDikX9eSfdeFFwZ5tDR+the5sZFChI7vit3YVY3zCkBKMXJ7C6hmozLWJHsExDi9HUUDP",
+	"obLa3X9I98eP9p+++/Hbj/vhx6NdPh72mrNxv2mEHTwiADwAL1UiU5/MajY5eBZHJC7svz/M57N39azh",
+	"93ublO//Yf9/evfjYXR/zXi+pzmnImE+0fsumZUg5Q4WdEVX36VtjYwLgdioWlktcv64Ty6M4BnP5YLl",
+	"cTQQqnXVJr8lSfenv8zoVesqIlfDGRftPyWHGCENHzEjyoxmWcXViDCpgajYSo5tFzZTvEpj0mosbdQO",
+	"uye/IcnhT3+5QuWoJo10ty2jc7jlgy4nwGbe6yK3u3vQdNOh/r6kCLWkChC3aAs8iCWZGclEy3yJuUwc",
+	"abJRe2shaCG/nVPlMphvyUnt6F7hi/bTU3gfx+5zOOzK73Zhczewsd4xonIbbltmimtAZo/HLGciYcN5",
+	"097/+jEABbo//aU1loVIQQK1OID2gf3jhiwIGrwudTDYnkY0udg2VXBJI244rN3TcVzDQP3J/IN5fqPZ",
+	"HfSl5p0wLPbDrx9/INRIrywlo2W5DveUrZBcKW21xek0F3FdVQOXJc2N5wZreWuYwzJsd0VatEmuYOnu",
+	"KQfEIImcMWUhwVsZLQMJwlLL6+3n7hDXFmvlXoU76xfdX8wgunhn+Fp4vj5f9J6FSPmEM40K48wwC5cR",
+	"2j5ZA2COGOQSMdwUgQMN2a4CffmyRua3vXgrG15paHU615gjVu70KsvkgmtOs5i0Tk++R/B1IoXmouBi",
+	"EpPWifkWBAhL58IRhZzSNmQ91Pj+9izTN3nqm6kcmKDJ2rxu4NK+yUEKp729haa6t9doBtUudtjaG0Yj",
+	"biw87aw6YenpnQqzbwoZeWHxebUM3OggIN3I+yk8FtkoCjes1nW4JslZd4OMemNG+VkdqNuQfcsh1jiy",
+	"sJbWCRUpT12mrB1OUHrJFVsTKgHDZw56mEylVOuyY6BdbmMzLv2sq+Gx2siMXlk0IaIeh2sKZL/epkQ3",
+	"kSIs7W3OX8psfYfErVYo6NmYLKNHlErETeyvUrPmLIm07BjDvy74fI7aDLJpSJJ4TBgU/pR6yvIFV80p",
+	"p1UxG9KRGjYXEP/w67MnH9yqGIl2P6FZUkDxB08Y1IqY2zS6G67CTSrJ1e5GWPAtmO7ac+JPYeSPtd2N",
+	"9ffGDrC6fs8YVXofbbDKHifVIfHhwdWfup0HMfnrf/4/zKfln3qxO22Qvd05pkZLQgcCjAUobtQjMcCC",
+	"aK0LrUfZjPGUEqYJzToR+YfOQJxMczmjWk7yDvmOfPPNEWn1ut1em/QOH7Q7zoDhxmY6PDxQrav2T/+G",
+	"sGg6EKt2jcBocfWn5NAVj6dJLpXCu6KIliSTkxZ8Gojzx20fwWi+rkyjHdmkX2a+vla9XAhy/vjYZiml",
+	"A1EeKzl2xAQ8T3DwEOTpbSP2xlqXNyoa99RAxCtFBjt1eLMvgl+jWIj3Dg43ZvEPLDOqmAH6eqRkVkDO",
+	"ywzTcmL6fnuRBmLtTSJ0JsEhKRWUXMQYGyErBGgmczYQ4Imb0mzcRLQ65AksByqcGBOooNC/H76CrNJ2",
+	"OYbl13GEVVD8bbZK2phfQWIbVYLZq8BugShFe7jxL/u5B/8u/fdL+xm/V/Av4MK3ExL9lXuBXfrPp+Ly",
+	"/H2u/7H23crnXsNL/6n23crnlZcqXwDs/F1ID16WNSx3Cv11ZzUIGrAnNbKH3Ffg5FnWFPaLepuv7b5t",
+	"NXUQiIKb0OT/q7vHqi9Ela43UstKxc7bW6JjQm3Fi4yNNZGFJppeAO7Dq9l3umA1BBqD4BAfkNJIpARj",
+	"qcLUoZYca0lGbB3Ja1HwB+YwU3Mn3VtG4sA3xxmdTFjajgYCHsZRVMM1SBzMuk+wbVwrYPbm4XuKnD8e",
+	"CDBIEFfR936fUEOZbdzMQpZNGnJrxKWUTXJmxmzeZSyVM9IyG/DwAfm1reCk5lQoMwVEIwHVNLv1Tbft",
+	"ATql0B7I6r3GVMurB80DxG+mEt1NBcXd4Lu7lOpoAPPallevIfjNkyLnenkOMjXMeMRozvJHhZ422AbM",
+	"1zLnfwZ+3SffwbOopSWAr3KILgJAKNWvwLQiiF3yAWpQKawSogbVwNIZF/ExUYzZGjaQWoZLcU+R+Grf",
+	"zXYfAVE2rAiVAiP/w5BKEXeq9Xzv40dwlY7l6pSCOimYP0FVEmwXAth1Rkcyt46DwPLhGXZkhB81ELTy",
+	"80oyqAjdDoYMeTEolEtIWSTcyHsZT5YQLU8UA8+N1XkiFAGhqYjMM6khnfYly1UYlK/g5tkM7Soif3zk",
+	"EpaaJqmogP4GYiC++grFBdwkFytPNcpena++ImVpciOMmatQ6CApBUpGtlQDS0litj3n1EUJG93KUl9F",
+	"ILYCqce8GGVcTVlKJgVPKcA4MarOrzsujpmbtrYBDH+eGNnJUEGBUokVU85fvgIqNhDznCUMCgwee4ue",
+	"IbVuLUDYfF/QDPNrWMigLUFgTX4d8oQm04GwFRZEGqY+8JJ3zuaMaoU6IRckduaaGFb3V78iJ1JcGo1f",
+	"CjUQ+xhvhWwK0wSY9VGCXrBhAr2+5u7bs6cn5P79+w9JK0btqU+8uSU2BJ6YHt+8PiFGHSj0vNAdUpoX",
+	"4BBjehAzPAiKzBl58+b0MUFKojpmRFiKDX8cc8E1I6dPnjzZ/+bBEUFlTXVw2BZii0XyXtAXEJAu4J3l",
+	"sRmOhcZhyFpQI4YrTVrU+t/gx4rDzZ2pyPA9UlU2zWqXyLtcSt2G5KRGe4yd8kCJMrMWLIMZWbJPkOgp",
+	"myjC1S3A1VekFTfxhD4WN4cqKoQ4q4tvyixSkkmjaFMjg2RZRBRGcGpUA8z6JRiVA+5H6M20BeqCudO5",
+	"GW1qA/vg4KQyQdrj1wwJ1ogdkyTjhvEQNTVLZhrC0EA+ERJ2DCajp2xJUgnvmllGBLIsE6Nk5MSmCFGE",
+	"pql9A7ceTqBRLz35U5EjXCqyF0tFTrEDsoSBymYl4ASW561PDo0Q8vUReXR+cnpKMqY1y1VEUj4x1xSy",
+	"AXQMvR+a//TNf/bjCKdEsZYXKFbUvmrOF7xLWsh2SVwe77jdIW8Eh6QFgNVH9IVpLcD209znCXEX0vAz",
+	"04itPwJzArYyEEgK44PLw5jk0qhxKKDtwAMfWcwxhA4wkIkGwkXNYj99M5AP+IF8AHnuA5nk1Ozyh4H4",
+	"sL+/7/9vHgzZKfkQ7hX5AHk9kWVB9CNst92iyNbfMT+aOxXhw5XqK6X62To9+f4A7Py205Brkw/k2enz",
+	"c8DxTFx5zg/YPnJzz5MCXhTV6mxGzt8JGgxjNlDa5ssWZiUSZruvygjkg+FkStPxuLFb5G4lazPKgM1v",
+	"7JFWx8SGfYfWKxvyWjG62xGgUEI+kEqpajNtEOWBpJruC8eAcBSw/dDGQDypyDIk40ojQ8eDgBTANI/s",
+	"FpVuKKllrutANIg+fULtCZvKDCxFX31lyIwU7KuvrD1gBlYT06xmacfNBCqkmiGwlLAro7hwjRaUHIio",
+	"kU8gtZDyJM087Zh+xrThToZDv5wz8ejVKXGSpMsr7dD71F6hcuaGYpdCZp/88C4eiJZr536ni25iZS8F",
+	"LhQYeMzteGle6sHqmldOHxumKliirV1YGWL9yIHnIjKjmWGYWIoIaT6cgkt5wVIfE0COuofHyLK4+9Zy",
+	"GiPU2ZXCAcHT9zskPpgymunpnw3tOoACUfjnjOmcJ8qmPDmQcybonHeWdJbFAwGyh5C2k1bsFg4Wou0I",
+	"0xOwFDkqhEVKzUYKslKGshXDVuGBPbDf/uafFKRhQVo5ELEtyGcoZUOxyBgtU7GVQ5pqR/YNk7C19EYy",
+	"tczMiE9mRF8/7B5urLPHOhPgovGBv3EHvYNq1hjSigd7g73YzBRg51OZ4fvtY+z95Px7krAsM91uXbkv",
+	"IrGIbcbuETXsej5dKoh4B0BwC0RNQqaMpgyWGb4+bDsImu3omwMn6sV2OCVA14znupKArrn3BcuXfVC7",
+	"zdjmVE/7PEXmF+Mg+qcpm82lZiJZ7v+BLSFTA3oarJw048rIt8KaAMKlh4ZQ4ObKWf9z5Ku24EZ8YI/a",
+	"c3c9iFoKTa8iW5rUaE+WxyO3DWCRho8edbvHeHiQcHE1EEYC2retjQpXwdFIakXmfSpG6uEJIy2jf9js",
+	"nIF50Qk9A2HunJE//LXFJyJIagG5vni5RuSCLUEWPOr1DN990O2i+mLoxkAMEB0taIZXabCH5HnKDG9z",
+	"NUjjY+u2MALixAzEnmArqWXSHOEXEqi96cwK1Igu89VOuapIGV6lQuHRyQLVgqZGIg6XTwoGYqxHyoDg",
+	"B1T7ApCzoPRmPGE2nRcGke0Z2TXnTNN8GVQlDZVcRJEqm8Ky0+10bZpXQ6P2+nv3O93OfcSDTsEe4Kic",
+	"+XvCmoCbUIBQkV63GxSjm+cyYUoB0cr4JeuQFyA+OcrX8fmhuRSn6V5/73dM/952VfOF9rrdIJkGWHAC",
+	"ivdP1m6CB/U6Ww12gRaB2jxgmGY1HmB/Tc34cWEGNkEzoNQVY8pe/4d34GKamW3o7z3jlwxqwEV7GnLp",
+	"/VDOXGF5QMcz1i7yq1ya888KhZGs7GruCuugPlhf32N8BMr9AfM04q3hPnoh8wuM0rE5exXReaFsQNzK",
+	"njy3I7t2T8y4DuYZ5bXdqBusVhbe9nAXSx8s28zPY+0mhJx67U68njLihBWvqwVUYkEVGRXcSLVgL93i",
+	"2Nvmdjv2bpA7LHQ4dCNnueFH5D89ev7sLtb/dajRblp6FJ+2pDHWI+WLpFL7q7MBWZbFfSadiDzo3h+I",
+	"0gVe3xUSz2TKQPC4tiCrEQjLiqzEoef6tlQh2HDMUUidnwa0NT9IGEmrWqWVFELzrITZmJaVIaEzCaYQ",
+	"ZOYB+xwYMYAnDFy1XCuWjaFGJlZXjQPtolJ2NSJ8TKhYRiAFQKYonpOMTtbc/TPclTskx0FR1tXzCt0b",
+	"JgzreePzad66f/1b57i0bwS9pBzRCJuOdjnyDcfap0Fde7K/+gos5f2vvqobx1f0Xpk79Q0EC8y7RgR6",
+	"dcY8N/IS1L9BhG0cBJPEYESy4rwVfQQZLQci5mn4Y4c85RlYSxI5GxkxGOTFRy8eH5PYEDS4I1xYzBWq",
+	"OFrGNo+a+S4iI6mnht9URtAhf2BLxaC8FxfWeDKnSllxAeuvDcScTtg9ReKglFcMpcLc36W/HYLBcbjH",
+	"tRfMNQU0ihRl/VLTtJEO8SEzETmn7wt2DPJW1VCZMgxCkTn42BHMM6OpXRAgJa7zCHXCbtMtesaVPnEl",
+	"GLy+oCDO33DKPdAGXMKBfjVadbs7FKLIPkbNzZZxr7fXps93eXtN+kin7ZqshK2tazOo4LBVo0FhiPpl",
+	"fULzjJvbVjnZUXkfID6sYQzm5lQGsA1ocrX/Z1Q39O5v3rreIRPep/b9ik4YUfzPa3sBhbbSkY90fdAN",
+	"HLm9ih+3sWRuk8xVvd9Wm3RkA6/2moH5eoBbHyoFYs27O+R7cHIBqNzA914KBhOCSC2gHcD7jrbhfd/R",
+	"1Hm64ZXD6195I6g1abMUX9qCWz6V+YinKQO/91Hv4fVvvJbyORVLOzr1M3Fzz79PMAiHGyV+GfBwy6/f",
+	"RXsrBlfM47VNhtUq84cc6HcgAWD1WbBBjLnukFPkUt4tK0XCopJf2lTp5lakiPrCb4bWIICZ2SEgH4zA",
+	"RrLFltaIh1gxaIWtNW1M+QgefZsl/27v1zodCIsk/8KvVPfo+jdeSP0Ugnj+Ru/gI1fEwhxRo7kBuMFi",
+	"JMCH5ZJw3PXtPACH0VZ3dPOddOa+xEjiKdY0tpim0r/lFNW8EJFLlgICvHWqBN4rMKDN50ygTrrpJj6C",
+	"KfwiryMM7Zlca5XAAr5fruQv4EoGRw/cd4kl8u4G2su07gbucOV8lXo4bnOpPuniYQShItRoxDjqiOTM",
+	"gtI9E6zFmnostsz5BCKQHMAEylEDqywzW2dcoNeQcDDNx66ZoRzHx5h52zfk+aiLHwRviqZLAAdZwaND",
+	"zhxqsjoMn5bcvOE/Ge0VkhU5wJDFjraYJTvQ1kBAlADE7hnNNvbY1Ji0rA8MIqpAj7BmZLActC0B8stj",
+	"nUbxHM0DQ7v4x9a0ZX36LsNBIe4p59UZiAnT4P1BH7/DiHEdeeeLm+095aFZNEd2ALmmqBoIVcxZrhhM",
+	"/qVLMOUzZAM5xXM6pVyQhApM+wcBG6R11H0YDQQ4oGIbJauG9m3rAjuD5B+to14vQsfnKId/nJxUOkc9",
+	"mzLtHXsk20Bg+Z3Tk9+T54dd0up1e7125PIelwC285evXGyvIfZtcKnG4N0a2q2L+zgG3FZASyEntAEh",
+	"dh/BdiGYiwbxFW+gQXtY1FCB8dtsm2CLuE+oJhmjCmOZXHAJorLsYaMZGGKxnRm9GrpfhuOcApADm5lJ",
+	"pUnvAfm1d+u56EA3lIEgZbPmqGXmlFYn4YaQyEJoqAcPfi/bVNuOgguMzlHDCzbX4TQq0MngwdhilMwY",
+	"Wg4lr/hV5LaojQngfHp87Gkk9XQIsOQhE6kaCsZSm1babAtMxgy3ctfMAoC9yzqRbR0Ad8KnfDI1ny3E",
+	"m+a5XFjDLOCfqca3TYfHYIIyjVikEY7FjiACZJth3NqGIDuIxWK6xET+EyZYTgH2FNu3SoMWLHK7SX5A",
+	"yvnEUeNPlCCAjX0n0+WtCQ9+ZJ7lV1HPkDRxRXg5/Dy6RJi0AH330P8zmazLWU/1NKzrrwDMGteYIyS4",
+	"qU4x2uTq+TsTnLpbCE4nUowzm+Dp6HCLMb2iy0zS9LWUz2g+Yfjeg20WQBVzLKf2nKWcvl5iis+jXm+b",
+	"l60n3MhaT4Tmevm3Kho+qUPmgMqBiAX1FVDyCkpDO5HxfXIb4uI8k7ozxwDLuzCk0BkDACE4G6AzdTmJ",
+	"7cxevfgd4TM6YZsUsFeZ1K9e/O4uVTAYw4FdhQaT7ogLiuasbZzBMMsvStfPfrPMwQm0rYjgKbpzo4c7",
+	"5Xdwpc5LMLEXA32A2IzmFyy1IrLV0OzMbXDzmEPIxkCMqEhRYaBlmaM5FSyD7NMLUFjwanpsFUWMDKCf",
+	"BkLQGQiZ2L6PxAmifEzr1kt03fU+//4zXG91OfnN1Y3QHV8u9C/0QuO5ufsLXQLut7OpVJH9tTt8uhJS",
+	"BnXE5kRLctgFiKWN/whi2eyEQdVDlAkttUMEMuNtLm85cSUUjToUl9/HpfYG2pXT9dodsoLC7JBXQeAb",
+	"hObUo9OoWLoQLldHC4JnoYgl1Rb4rgg6oc1iWKJwXMnNNhCgfSlQ3JA02crFRNGlQ4Ni8BPUeJOFVjy1",
+	"pX9teCBLBwI1QJkjISMUrd0WoGCt4hjqNOYaI2etaRz7AcTrQBx1H67X6oJF+cXpdeXYdlLsuncyAFsF",
+	"dI031tqw5j6gJkLol40ty1OW/92R3S862C/Rax0GTCgs64jxvQF7CbnAljxmA09BX1Znno5vwT322od1",
+	"2GirkklaRevxUxQLQRWz6C0wlwIkou+4gNU9nf2klOYij2uOAk0VAgag7riTRiMykynLoJ0yf4T3E5SZ",
+	"UO4RlcicqYiw9wXGHg8E2gAxiBXegWJrSvMkQjKO1n7IjRi5eqbQlcwvwEQP1D9aE4EXedYKjXvjuPBZ",
+	"CB0XciBTXzeNtLAaItTaszHBzhqJVfj+LAWLzDpCkS8rhQcux4goOdYLw0PB8oywARc3GrkS9hoiEmxJ",
+	"SSeiG8nep9tFFu3dH2Akr7hIzEne6NI8g0Py6vHTz+XWtKf8kzVre2m+iOI/O8UEtSjnQkO5zzA9A+5R",
+	"SDehNNht2KrsM7fg1nwuoR6AJZGQLaHujDPieGxDXK0Q7+oJxEjzcKbod3AlECNXO94RUrZgjeWgyCNo",
+	"GoiWG4dNlY/iMaDmMdE2Oi5o6X5oHfV6XpCVgrU75FFFCMfyH5kUE5avzgxwtQ/7oPtDtgauyBjyNg/E",
+	"GdRhUyGsAhJrCLlAQqqaKAvWqb4N5NLtC8Q4tp9JGF7r5cBRsfSLgPtFwP0M+JN6qP6dQlCqpWx3lG2j",
+	"a8wnT+qCma8obCihIlrKdokpqNTs7ZN5WNp6IIwUBxJdVZTzBZV99etjlDKDSjQuy7oX2cJy4oy4muA+",
+	"yMHW+94Uy3BeLtsvEm5WrW68RkQr9/6LmPbz3/vySDXDznaUzdaot9Eny2OPBIF6X7kUPCnPUD+sNznh",
+	"RmaDVGyYLMomY0NLJKHa6Y/+9Q5CyUx/TlajXii7p8oHj52kR7N4ICBDp5X8VEkyQ5moRRV59fL8NbEy",
+	"KSK88JLnNpOoNa4C/binSG7U85YXCWVO3tN920tu8w3gr9HqL2Ig3ADbWMaqgFo1kLRgTU1OsycsdRAy",
+	"0+GMpgzhdB4kaBFaiiVSpPu2FT+nRzZvgVvqiFCSyeQC0iEPRMqBNaaEJoCDsUk8jm3OLpZCJRg4feYt",
+	"Wx8VHm0ihOaw/jJFyJX66J8ZKxMUer+G6n4RJ7+Ik5+HrXw6N9kgQa5UgbhlPzoKkRUroQ8uaHC7Qdyv",
+	"jtdJb9/XCkr8AmW3lUoeawhJZeG/SHA//1X7vjmXXKM0twERtqXzextJrpp6dv09I6dBGj3T7ECsSYxn",
+	"daYR1ckUUwQZwSTsqH3ss9MNxIwuvZ9DMF81xdzSqZGNWrVBWUA65JGooKpHNLmwiZZLyc5IbJAQ2m9S",
+	"HBEhjbSTQeLRtk2GOJtD5QGubfKnatatvk9hMRBQLg3qQrkCadDErx9fX0iNnGosO6HA/j8QUPHrr//y",
+	"32ow7TLFbSdc5KGWGcuprToVRyggDoQDAPz0r70u+bUrgEvenJMnrx6R87f73x59TZ6jS+jbbrf7ODTx",
+	"VvfxeBWRb31JZvY5T2GNIhedNRCVhLPwtUPwu2itR2ViJ1haV88N/VbO0GlkS4Xag6s4WDlfEO/gJHGv",
+	"r1fzJRIX8z0QVJvDi+4UQ+xt9hAKyw8VY8PGQVz3ITHHUEnCPodhAOBOUrbYgOvFNu/yFKPSELYbDQS4",
+	"tMBQnEvMKeyQ8VgnCx0/gMWA/Ao5FQqDCOwxhyRZuHBH3YfEArVc9VxEVrjsaGgDDqvkDoS9PkMh9dBb",
+	"vNuRt5aXoSOQ5VcEyoTzHJaNhHEhZRM1DIZ9dkrVcMx13O6Qo16vD+UxwjW32YPD3QxCbUyflaMPaz0M",
+	"zi2kEaQYoLIG2PF9tQzYL0sLaSpF9ZkVkabicltIEj40UxbaXPQvWsoXLeXuRSd0cxPajAYo0/FuKUF5",
+	"aeR68GCQQPjgx/LDR6fjWJJ4R5j7wA+I6WZTl3Kxhs51mSKpRo7ncIEDIeSi3ff1cnx1/5KPaUTYAUGG",
+	"d7G73AcRDkRLSL0Ns0B5yjzsuA2CITAFk80ThPHa4IuNsLAw1a4eVwDhg1ktKEbvgWvTVg1THuGiWBh5",
+	"iRMbcjGE1MiQXlqAgU4VybTO8ZQzMcosZRAF2iFva6V8sP0ZvcK2h3TChlNZ5DZzbSDAcGXbgWpDuIC4",
+	"ExFWeceE9zCwDjnqHrnaARCtmTNIXCnATcEFWci82TfrUB+n4qnEmqK7sbVSjN+7Pg/S+uCqXZIYrXKT",
+	"mUQUksvYfwwOaYTEjBQTel2aGqp3z9Jz5yk03FZsyqRRbv0XLfwXAXepJVE3t9Uey1tVwa9jIbcLRn+k",
+	"SIyOjPWY9zhatYmV6zDGXG4rzCW2RCFeYS/m6kIlmoGIf/cEu96SYxolAjKnw+o/O31+7lN/A7AmuXDD",
+	"S1UjnP2FrI8ffBZHA+ExigiyWa8jlPTwU2DgIVW9I32haaBfMOFftIcv2sM2JP+PBTUyyXID7btVcLit",
+	"cLGVTlAT+DNMYBhmX0Ex1SV3Hy0B8bLOf/Hcdn2HBAC72OR5sPP/kpPv9sFfWRbUGaqelTDAwZ3Aded3",
+	"FydBKGKAndScP5LYbEL+pB52yCupNObPxcQskD3FPIyFisRyIFI+HrMcYtrAWm/Uu/qZd02j5ngV/NLq",
+	"dQ/bxwPBIM1oXk4dkgBFgYnVFXQtYb2+Eaw7PRBB4qNy6OyKJtrm0KmNq0SIIR0ZCDdQYYUTBAoj6JZr",
+	"qCAMaJKcKbRe+1qbcjwQgaEfC0oGOQjv+SKcKkxu7W3paioXMIUsg+wxHfLIGgDKOmmF4O8LXHsujICL",
+	"Sm3rqNfbYDZ97nLW3oUYg43/TIKLnVkDzUKdNaGZM67Udv7Y7zBkj0RjKVC32zTIrh8fXjvnisk/LaWK",
+	"YyRxwKkOfjTH5u8tp8oXUewXGJ4Hl8dTo6j0voUiD5ar3pWZVaUve6ZvQQizVkp00mHSszC1Xby+LghS",
+	"0qak5nOqp6VlC/65G4vbI6LmLOFjngTkLKBxW9jdgoQ15YjKbNWHR98cfXv/66Nvrkla/e5noe2lPPrF",
+	"+PbzX/+Xwu3Gze+3habteK8RJmYhqxHxeFcXaEBa2C6ITpiWMmUZ0yxtr9O1XuFA7tLWAiDeTaoWDrrz",
+	"RW3aeOzMCtql2h7jeGMdyQG4sTqrFcMB7B4RSsZFllWCV0gLSkiX0RYg3bejgchlZmvM0RIi37IJzSkU",
+	"O3yUT6To8ZRMqZpCHasNsj0epzuS7bHxnwnMYGe25pI4oPreF4H1i8C6K8eaQ6i+O0O7k48K1zr4EejA",
+	"xwPLf7Zz+9TEU0tfEiqCyGBDPggHNJv506cQ5rkrslut7hzci9JsYn0s2oa4gVWliZw8xtF7enK9hAvT",
+	"vrGI+wzevlsR8u+DhPz/QIa0h8/wRHf+buVKFiKTycXON/IkYzRXNpoKkJAADK3ETbEyxK0R1/EGuv5y",
+	"nb5cp89/nfDsffptsi6x3YFwzQE9YGW15qAyRX5p30fotE/vjoBqyPgTQVZ8LJgBHFEwoqWmGbqcoaL4",
+	"+7hdryvySmaZz240EJXCWY3l9hTHDHxoPOmX0QdQEqB9PBD1inuEZgu6VEQxTVoApbXFp6GWFdeurLct",
+	"v2eaNWoAQDCmVA1nMmexQ45h/Lr5yhYHIQuWM5egniRyZkvaD8RTiAkwrL06IsWYsuuJZVic90OKhPVd",
+	"szRnAyGK2QjqJtr8J7iUVr4ocevK9gvQDorzAmUaMfWgzdi+HBbQDxQsUjkeAZpM7WNcQXlQzYTrOugO",
+	"G4F61Cnhug+xKeCJGQgbKOvSREEMSgdt93FEYvt9h6Zp3CexNeojsh2BPB753nHBJ9F6AKp9Mvw1bkNk",
+	"bSNQ0r/gfwoHAYHCOiwzUdZ/MEM3p3xos0b5h0N8phRY5r/RbHEGDT2BzV1lNjepK3dsDYjlUMwNcI+O",
+	"GUvXmRbhDu1eeO5Wa+8ddsPie4fda6vvvbvTcq9mc56yZjB+WPfub6Mi0N+iiwJZizm2Zp2rUUaVJCv4",
+	"zc0wInmxNeivjJ1bzSEtc+soN+SuFaTHK2vyWEqH2OwxhG4IB3+ZM6BQ6DqulQC656tDV9II1kOV+oSS",
+	"XvcQ8yOoih4ZEHeIBCtcVgPkJqiSXtKMp2RUaBfQhiNLqLA5EayfXuYYJmY4J8NyIREUTfFbC+kHswis",
+	"uWNDv7HISRtBgzzLLHQwcqY5K5qHGbuq+WP7JKeLgUippmW1Ij3N5UIQuqDLDjkVOH4u5oUmraOrqzb2",
+	"4lEBQQmdEVtKm53GVuAGZ3w/xJxDNghAT9j6buYjxh66fSqLCR07775ZEp+429U8yuiIZVAbzSgoErKF",
+	"t1aKyygykYQLLcMwSTwseiFtoRiSSsBlqikkPRyISoTksbskPK1AD+Ysd6OCVfjVr35FTlM2m0vNRLIc",
+	"iHNmRJvgq/0/sCWka5vRCzNCDenKFR0zrI6MxcPN1XCBEAOBKTJAElC21PwMhn/B5siSfD2c3hEB/D5G",
+	"61kr6D0AUogJy8EqC3KaS/rTt9k8/uH85QtbjM4vvhEC5zQv82aKRPqgc9JSkiymXDOi5jTBWL0ZM8fe",
+	"yk52RWdUa5a3j7GjgTg5/77SEfAxUjJpn98opwsykumSjJaaGa1yn5zTGSMXbBm5ys9+UpHNEOrAl4Yy",
+	"gnMDz95XX7mMkwNB/IX66iuzFghoKefV6x7WKkzDKEBIdQiE2IitxAbThtt7xuYZXUK3ecHiYyKkTVgC",
+	"K1qie6vTcaghHc6pT456vcqDQTn66nQ9AeCCjDM+meq+LRYPXUOUiRmw2QMbBGyFTdeC5jMGyr0rDZ7D",
+	"TDAeVuYESnkddR9CRSWcd7WAPTeaSllsaMwFV1MQaTmg+fYhVNZ2Zs6yJU6GpJgOHhjK4l+fygyDZS7Y",
+	"0l8tc3RasWZX+iBRl3F7IAxbDcDcirCrucy1ebJD3sIoT1Bq2X+9nLM+8S+X5coGAiEmZMxZliob3et0",
+	"nZXjGSMdMyJ22XEcAdwpqLbecgwTKU3sUtLGpCWBCdKsfWzTo8d1cSq2sbhBt0A2R8wJoq2jbrftDaZw",
+	"QLkib14/3f+WtAx9xNJU5urs43WEvKxcET4R5gC2MT7l6PDb7kC07NRndGn6eF9IXzEvHuzFx+TZU7NF",
+	"J2fPnpKMCwbFqtod8owLCPY2Y4UDORDJlOY0gchhReJfxS4RO24PuHoMhbvg8zlLj8koo+IC2lThD9Z+",
+	"i4ccK61Dv1Z/xA3rkBOZFTOhPGgUS9qJJVKgvlmeDySBh8gH4naEfAiKlcmF+WhFIPNhID7s7+9X/m9a",
+	"iS+4SGPygSyZIh9AR4EWYvgA78cEn/TBBO5hx9e4BzKs+RJeB4ZUvoysrvIq6tT4dDWS37/lYvcrP0fk",
+	"r//yv5NurQVHDcuXIZ6rjJBwdc7W/wDt4CIMOSyJkGUvJfOszdRlKVh5wf1AxjSBNM6Dotu9z0iXtPAR",
+	"FMUO26YhQ1peBuXsDFPO5aJDzpwk4FwD1mAJBdgqFB7qpZUxIOa+2l0IJU6EKcJFdBSSUV1tpLodbQes",
+	"ATZS6yFYr5YVYZGplN3UeghWrN0hZ3JhOS1XKApQVZbWMy1hBIJZH4gJwnsQ9gvcz14Kl7IZbgGICPgg",
+	"vP/CyrOFYiTugHkoZQmf0QyLUUaECuLoGhBhAVQqPuw8YPv34zampSCGrhWKilS5SnYyV8ckfkFfGIJ6",
+	"KsZxmd+QX7DQp4N1mHKGzdgVgRzakJWDCxBiLKdJWJYhm/EsxRDZJVbuVGaS9xQxd9pTVjhZ+LpwOdXN",
+	"/qWFXdLULSGSGkpmHLMo+DXE3yMj5hBYRyuHl+wdFQMj+1iSa+MpHU2zeDFD7LCWIPi+4KGj7sOvURbC",
+	"fcPcCZgTDTaB5SQ+AFJ6APclEXht7CccHH4V4/Fofh6SDuCZgTV2ucsVSom4jq2//st/wxIgXsyGOBhH",
+	"WJFsydx05IJjzCsPul0rcuPnsIpI2+UQN4weeBqiim25SdNUr9uNzBugscBFxsqSKCahzgEKi7VfMas9",
+	"+halyJa2VJkU+0hNEPB57As40iVIQiOJga+gMiEmDmUq0K/vKWg0ZUYozgNotmnCFhAF6y1EbdkcyIT6",
+	"Je90OrHbN7QJXsEq9AcijuOB+JWVZbDjgOrOp1JLkAr2D0nLstZVFtoeCHO8I6c1oUJZ5QeO9EeeJkSO",
+	"wkB2edjKSHDzPIueHUbdzoOo2+kedntRtPGJ7sNvm5/oRYedrnmi133Q/MT9qIdPHB0ewhN4etzvEbz8",
+	"oBu93e92j3prHji8fx8fuB/17IKuwYycFbtnzwgk/j+w5d6quc6cDDhpXgwElmFTL1pNGMJc1pjzPIbs",
+	"NiCSm0cTHK2SQ68bV/nwnY/NB6uDWYWWEf1lZPXaQOpSEt89onrDEL3kbkYnDfOppSpYNyAn/W+9aC/d",
+	"Cx/vLNV4EWCZoj2nGFUbWF0I4Pzmy5HRmA2JNHOecfGMiYmehgblsD7C50NKnRXXZXsB04ZN8uKSRRi6",
+	"ibCzlpE3La3OrTY/ECs2nAi9UfYlyxp8WQu7YdZFEYQwNNkKVhc6BuMBimR6ypXTe2xvPkpGjsHd5IOF",
+	"ULuuGi+MAr1N1MNIyoxRAYdhu0ALALUXrnRtXoi/y8K1XzBrv8DielJpcz3tRR4bIctf5tCDUWwKcQ2T",
+	"5DQ4L+Awb+ftX+/AcPTGOZ6pMwD2YcRO6LfJoGsl1NHs6v0z+F3FP52zhHHIM1MlaGsiNm4i65wV4q4T",
+	"fpphrafVXzA0v4CwXOcPwMN7q1fstoE1FkpT+jF8JkUVVW+PxV10yJnLsJizgfBVI42qFDkmzLwVS3kv",
+	"22q0PQZPcTEQLqdgGh9bFInzCaKTDdENHfKoET2Bg3euQswmDxqlHYSLKEPQUDCM0pHpEzjJDHOPcjR6",
+	"TVkG2PoSTeHt62chymggHrPc0JZ61lFHaf54EoWeiCKr5PFSA5GyhBuSFZFavhKzC7GFNA1tnaD+QBx2",
+	"gl4WlSGuTcjVJ7GbVHw8EL2wiUQWWUoqTtba4/frPfr8ktxllq+9cRS+YT0YtnZHCilFw+xepkVreYJs",
+	"YLW2HnTCOLVm3I1PGFvJYmYNFfY0YE7VwPeA4wp7i+oZQuH1SpctX8p1NQFoztApY47OiCYXYNcEI1eQ",
+	"V3Qgvg4Xp5LarE9iqCClQH0yk/8mfDbImGadS9QelQj9Sj5pGk6t3Ye+7Rky9KqCrPPQOTjI0LoDZckx",
+	"8Xl8LC2J1zPLM4+J+CXyTDe6tQXo4Ocv7PMXkIO+msgXEZ+FuFWsjS1nhJf404E3lhiU9MfXbnTmGFuz",
+	"o0VrybAd2VClcU+1OwQgj1yR95irhluaJhJW56NgKEfCIMc2ybBzlpUWoVbJ3eVCYBFnmYf5Njy3KGGG",
+	"1sJs9WhfeSlA32p/c+7VYbcDsRYcRDZjg8yKVkk0VyuChVlTt9wOcIgcFmo8Wbik9/c70R/SbgOrBVcs",
+	"T6ZkXepy6wDBFGi215ZiLCCJdaEsbneIOwt2w0sIMSAatGLZGFiEphcMhETPQUq+X4hrYUK2YrjNAW22",
+	"BVwkFj1k+oJy3T6ltnWt2aNx7B1WhKcVTFCI0gFvARgtjJxneKJNGuqYn+F2FmA8pSps1LJyNzXkxLiU",
+	"OLv19mW7gJ/ERu6gUAyO6mcKaLyef3l5xMd55aWY7mA0X9KrfTE33b32m6b+NGoZGJ7eu7xrespmu3Dz",
+	"DXqx7ejgR++T+3jLmvG4BCUguYwITXKplJkX3jeXXcpmn4pApV1RnCEx5ibm4buqlqwGrZenZcEEHBdm",
+	"t3QMAPP+l2CFNVI6UrG1gvoqWXl2+vy8MvUVxuaAD86XU41M8yO6nXwmd1oEsbI2X9SEXzqdWbmltHZa",
+	"b01hKHMx4IV1dUlpdhsVq79bgvhmKwzCPIIqgYF3zVefhoibSo1E8E0PRFk7VWm6VBHAGO1dhUKqmOun",
+	"HL9NRF4vYd1APN7ad8qCddsEpn7CvX/zxkhzdyXOvfVL8DOln7u28F9Z/PZLCcAv8ttnpKvuahhtLrjs",
+	"t1MKEJNP7BxVf6pUAWX9cypSObN1UFs+kuOw9y0Zca3apVgy4ZdMYHCIcuSRJTnTnuaBWcBhA0S2PPaA",
+	"NYDmQdQOIFkMebYRIAMBmXWgrgV4JjI5MXrweo32tRnqHSXZgbZ/JpUU+r4GOwLbFJWWI7sBagpgUfHL",
+	"r4Dwhd7cPb2Bu00oHpaA0FhSsWW+AXzaoxAwWdvW9OWMXcoLC36Flo4tFLUEDncP26Vvz+YhtqnrId/u",
+	"QAQoaGcVy6Hd1NIrVNkaM+jAcB2p+GxyVYU0HK2uFi7Ll1SJv4iSV2YrPv2a5Eyk6i7LUymbsXVNSapq",
+	"no3A2X1Js4INhByT2J//oLJIrDI5Z7FF4Y6oYmGIE5T2BF8FKn/nj6Gl0uEeuzfi0ndaDheVIpHKRdlh",
+	"r9s+hsBWncvMofoVh0pOP/1rj5w/Jq0FzQUXEwxa++lf78OX6Opog63EKGwDcT5liynNNUngv63T85fk",
+	"m2+/6e737HTeMqUnAGUCi//hfk+VjUfkcP++igait99TETnbP1IROdo/RNvTYfeKtNAR3wZTLzMLSRGR",
+	"US6sqoIkFIIPAJQZ1uc6rtWMROtxxr3FZyBi30GfjGmmsLLWJZcZelAw4zj4iVxRyiAH+0BwcSkz8MRA",
+	"xOEYSnJhXMdCrmwOlMNCd4Lf9P5AxLgf4BkSRZbZQmPYJVflInTIIwyHIIcQCVHOaiDMwT4msc4LkWCi",
+	"DZdLRYQnAvz4kFilJWgO8T7arYVhCHAm4VoRy9CjQD4EUGzCotVaqnIhBuKPJwQYeVrkTCHKrVJFNSI5",
+	"mxSZeaepoGqzlQ9Gs4aPbEKo307C4c9RRqypDz/brWHjsE6v/GsNYPYnABY29CP0R0aEC3CWXq6NSDAH",
+	"4xbA9M/QN1vr3bpq1/eu5S30/Xu5IDMqlvU7GdVSG1UJaISx+jog0utG6X5vzsPSC9Ow9CpZWHqfOQsL",
+	"3qd1jjeWc8DKaeVnHPkoMJGWpPFLdpY7yP6X87F2EodNYuIuNJSpBjiAFTNqzNxsTpXzBmKVRUffTsk3",
+	"lLoO5pnUHXU5uSPxC3qpYLaw37gW41CyhYighdEiBezygJTSD2UHm5cA/VnIyiAujhE87eYLlIkwPZkV",
+	"hXCdPbjStQaiB94KBu7BjDlDNUC4IVFJZnj3WYMwYsQVGPUm5vcqk/r8+9994YFfeOAXHhjwQD6jE3ag",
+	"Lie/uZplVQbYEIbWUL/UkIYvbOz2k4yFpBcRj0C7I4JU7Ja5kumbJUXO9RKo4ojRnOWPCj3d6//wzpwj",
+	"22H9PpwG6SwKAUplUIY/QM+1SmVctTtB8ZBCqIYI4KeY1Ctsy100BDMFOHHDRVXQpF2T1UZPxSXLFSQn",
+	"tBX8zHidla4S2x22Fxb8W230j49c/WkwagRO02qFFLZoerlEc1bzyEUesxVAKD3fTMoUdJVeLFJhpZvv",
+	"GxGNUQnxLNNG1QsS+9bfJw0NY1UxKI1lq3R40YLnpCxgRuYy4wln4bK6sh4Nrb46tUnJOyH5BrNWQ25H",
+	"8D/5BZNV0BvLWKJzKXgSVFAINxe9Vw1chl8ywZRPlQd/zpjOeeLa54qkMvGRy5VgZTwt7z7+fwEAAP//",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
