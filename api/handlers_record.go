@@ -69,3 +69,23 @@ func (s *Server) recordInput(ctx context.Context, id string) (*record.Input, err
 	}
 	return in, nil
 }
+
+// RecalculateCurve refits a curve from its stored readings with the running
+// engine and reports identical or the differences.
+func (s *Server) RecalculateCurve(ctx context.Context, req oapi.RecalculateCurveRequestObject) (oapi.RecalculateCurveResponseObject, error) {
+	rc, err := s.lab.Recalculate(ctx, req.ID.String())
+	if err != nil {
+		return nil, err
+	}
+	out := oapi.RecalculateCurve200JSONResponse{CurveID: uuidOf(rc.CurveID), StoredEngine: rc.StoredEngine,
+		RunningEngine: rc.RunningEngine, Identical: rc.Identical, Carried: append([]string{}, rc.Carried...)}
+	out.Differences = make([]struct {
+		Field        string `json:"field"`
+		Recalculated string `json:"recalculated"`
+		Stored       string `json:"stored"`
+	}, len(rc.Differences))
+	for i, d := range rc.Differences {
+		out.Differences[i].Field, out.Differences[i].Stored, out.Differences[i].Recalculated = d.Field, d.Stored, d.Recalculated
+	}
+	return out, nil
+}

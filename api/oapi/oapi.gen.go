@@ -1286,6 +1286,21 @@ type ReadinessMode string
 // ReadinessStatus defines model for Readiness.Status.
 type ReadinessStatus string
 
+// Recalculation defines model for Recalculation.
+type Recalculation struct {
+	Carried     []string `json:"carried"`
+	CurveID     UUID     `json:"curve_id"`
+	Differences []struct {
+		// Field JSON pointer into the report.
+		Field        string `json:"field"`
+		Recalculated string `json:"recalculated"`
+		Stored       string `json:"stored"`
+	} `json:"differences"`
+	Identical     bool   `json:"identical"`
+	RunningEngine string `json:"running_engine"`
+	StoredEngine  string `json:"stored_engine"`
+}
+
 // ReleaseState `provisional` while the curve awaits review; `releasable` once it is
 // approved and no verification failed before the sample; `withheld`
 // when the curve is rejected, failed, unfittable or superseded, or a
@@ -2151,6 +2166,9 @@ type ServerInterface interface {
 	// CreatePredictions Concentrations of unknowns
 	// (POST /v1/curves/{id}/predictions)
 	CreatePredictions(ctx echo.Context, id CurveID) error
+	// RecalculateCurve Recalculate a curve from its stored raw readings
+	// (POST /v1/curves/{id}/recalculation)
+	RecalculateCurve(ctx echo.Context, id CurveID) error
 	// GetCurveRecordPDF The printable calibration record
 	// (GET /v1/curves/{id}/record.pdf)
 	GetCurveRecordPDF(ctx echo.Context, id CurveID) error
@@ -2439,6 +2457,22 @@ func (w *ServerInterfaceWrapper) CreatePredictions(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.CreatePredictions(ctx, id)
+	return err
+}
+
+// RecalculateCurve converts echo context to params.
+func (w *ServerInterfaceWrapper) RecalculateCurve(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.RecalculateCurve(ctx, id)
 	return err
 }
 
@@ -3054,6 +3088,7 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/curves/:id/signatures", wrapper.ListCurveSignatures, options.OperationMiddlewares["listCurveSignatures"]...)
 	router.POST(options.BaseURL+"/v1/curves/:id/signatures", wrapper.SignCurve, options.OperationMiddlewares["signCurve"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id/record.pdf", wrapper.GetCurveRecordPDF, options.OperationMiddlewares["getCurveRecordPDF"]...)
+	router.POST(options.BaseURL+"/v1/curves/:id/recalculation", wrapper.RecalculateCurve, options.OperationMiddlewares["recalculateCurve"]...)
 	router.POST(options.BaseURL+"/v1/signatures/:id/withdrawal", wrapper.WithdrawSignature, options.OperationMiddlewares["withdrawSignature"]...)
 
 }
@@ -4350,6 +4385,143 @@ type CreatePredictions503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response CreatePredictions503ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurveRequestObject struct {
+	ID CurveID `json:"id"`
+}
+
+type RecalculateCurveResponseObject interface {
+	VisitRecalculateCurveResponse(w http.ResponseWriter) error
+}
+
+type RecalculateCurve200JSONResponse Recalculation
+
+func (response RecalculateCurve200JSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve400ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve401ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve403ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve404ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve429ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve500ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve503ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -8469,6 +8641,9 @@ type StrictServerInterface interface {
 	// CreatePredictions Concentrations of unknowns
 	// (POST /v1/curves/{id}/predictions)
 	CreatePredictions(ctx context.Context, request CreatePredictionsRequestObject) (CreatePredictionsResponseObject, error)
+	// RecalculateCurve Recalculate a curve from its stored raw readings
+	// (POST /v1/curves/{id}/recalculation)
+	RecalculateCurve(ctx context.Context, request RecalculateCurveRequestObject) (RecalculateCurveResponseObject, error)
 	// GetCurveRecordPDF The printable calibration record
 	// (GET /v1/curves/{id}/record.pdf)
 	GetCurveRecordPDF(ctx context.Context, request GetCurveRecordPDFRequestObject) (GetCurveRecordPDFResponseObject, error)
@@ -8868,6 +9043,31 @@ func (sh *strictHandler) CreatePredictions(ctx echo.Context, id CurveID) error {
 		return err
 	} else if validResponse, ok := response.(CreatePredictionsResponseObject); ok {
 		return validResponse.VisitCreatePredictionsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// RecalculateCurve operation middleware
+func (sh *strictHandler) RecalculateCurve(ctx echo.Context, id CurveID) error {
+	var request RecalculateCurveRequestObject
+
+	request.ID = id
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.RecalculateCurve(ctx.Request().Context(), request.(RecalculateCurveRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "RecalculateCurve")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(RecalculateCurveResponseObject); ok {
+		return validResponse.VisitRecalculateCurveResponse(ctx.Response())
 	} else if response != nil {
 		return fmt.Errorf("unexpected response type: %T", response)
 	}
@@ -9756,401 +9956,407 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7L1fcxtJtif2VdKcnRDQUwRBiOpugTERq6akGd7RvyGl1l03NKhEVQLIy0ImVJlFENOSYx33Ze+rXxzh",
-	"1137/d4Ix4TDb+33vZ/B80kceU5mVlahAAIUqe4ZayKmRQBV+T/P398558e9RM7mUjCh1V7/x70poynL",
-	"4c8zpvPlo7FmufmUMpXkfK65FHv9vXOWSJEqoiVZUK7JiI1lzkhuXuFi0tmL9nL2vuA5S/f6Oi9YtKeS",
-	"KZtR09SMCz4rZnv9brSnl3O219/jQrMJy/c+fvwY7c1pTmdM22GcFPklO328OobXU0YS8+M9RXhquuTm",
-	"6znV071oT9AZNJxuHMp/yNl4r7/3q4NyFQ7wV3Xw5s3p4z0zntOUzeZSM5Es/8CWqwN5RJKMM6H3k6lU",
-	"TJALtiQtSsz7hCtCyUTKlCRTyRPWJnpKNZnRC2Z+MQvGWToQZohMaaLomB0TxRjRU0bknOXU9HJPkaDP",
-	"zkC42eJ+lfMNxrpvBltZd3r1jImJnu71D3vfRmYf/Gez6lqz3LT5px8e7f+PdP/P3f2HnWF//92Ph9Fh",
-	"79uP/2HPb5fSORcTXByhdF7MmNDNO8T974SnTGg+5iyPCFVkLpVmKVlwPSVcK5IXQq3bxbKTm+7mqe8c",
-	"hn1WiHVnKi/E3Z6oj+Z9NZdCMTjh39H0DLfffEqk0HY16Xye8QQOwME8l6OMzX7zT8oM9Mcte3yFb2Gn",
-	"1ak+p9lY5jOWErUUml5FZJFLMSFmi4nMCSWXNCsYkYVWPMXziM32ycy9OxD/cP7yRUQowSNBFlOWM0KJ",
-	"KGYjlpMRy6SYqIhQQQpxIeRCkDFnWWpesSeOyHwgciomjFxymVHN4Nf3BcuXxNMCvDepZIoIqYlZmqW5",
-	"Bx+jvRMpxhlPPuvqwUFhShZ5YuiP0lQzMpb5iBuqCD/ihW5RJFIkZ5ecLVhKaJYzmi4jQgcCfzJXQBaa",
-	"UDLmOgKygC/D3YCFpzNm7o+720BjlOZZRrgYmOlPprpt1+MpDCNl4nMviJYXTJCMJheKsEuzfSqRc0Yy",
-	"DjedCxJf7bursw+/qbizB1TEnASaPclzmX/OYbuOCTM9d4iZxkimS6LoUhEpsiUZAHcqHxrsESrSyiYb",
-	"YvEx2nsh9VNZiPRzr7uhTKk/juUlYVdcaRjZK7rMJE1fS/mM5hP2uQcIK8quEsbs7VAsv2T5PUUSKcZ8",
-	"UuQsJRmfcRztOcsvecLeCHpJeUZH2WcfcEo1HVHFSEKFWcmR2WuaTFlKhFxEfg48YYbFq2mhtSF/qVyI",
-	"CAhaaww0dJFzDUyfK2CFVCR29sq0mNozNmIJLRQDPuj75mogDGGlIh0tkefXxbN9L581TdY+fRBIcjDf",
-	"11I+p2JpmY76WcjEPeVvT25oJ1dEXrIcVsCehNua7htBCz2VOf8z+6xX8zlXiotJVLLLyDNBmRuGIC9Y",
-	"SkaM5oa/mVWpTfrt27f7jwo9NaJLQjVbFVji7+DtGFkFFSQGGhUTqnXOR4VmpHX29IR8/c2DbnuzWF6X",
-	"7XDp5rlMmFLmEj4Rmuvl51zBtyzL9q2UwsW80CgFjHJGL0B8LjJG5Di8jsd2BVQMZFERc20HQo7HTKTm",
-	"ioL4UVLwImOWbb4RqpjPZa5Z+pylnL6G9fjcIgVciXuKnGCv+2YU5nIYKiRFTS0gNEnYXKsOyLS2DzOE",
-	"R/C9ITanZtlg7GnKzTs0e5WbBjQ30ueYZorVR1K+TfQ0Z2oqs1Qdw0rCGDI21kYuJBrUGDMkJiZcMFBT",
-	"xrTINGmpKQp7WYasXwp4cMb0VKZwFOfBOH7cG9HkYpjQLBlmcjHUMmO5GcFwjoIdu0qyQvFL9txpj3h+",
-	"zemgeq+/l8rCMIrIqDn4wGG3GzUpmyibmi0v+5xxMZxTpYbjnCa4DD9ubHvrlj/PTKZyJlXCUqo0T7he",
-	"Dmk2n157Gh/BQx8jlHDMpu/4npH1hnI8HPNd35xRkVIt8wZ9+mTKjAS5MNo0GVOeFTn+i0ftkuUpT/Qx",
-	"XgU9Zbki1Cgd6SVXMl+C3qbZTF03FujnhdHqYDxXp/jSYbm+NM+p0aELwd8XzP5udstOgGU7z/pqmKu7",
-	"PQrmKGfskmXKKv346IPwvd6q5QVfzIfqfUFzZJSfcP5loTPO8mEi5YUapnc2WdeP0gUo+JbF30lfeSHU",
-	"jvt9yXI+thxjlRJUj/2HXz/+YLTu4BUU/miektbpyfcHJyfft8mMLomhrYROqJEojcQ0EELOuNFQQGfv",
-	"kMeWCve6EaFGEiJvzsmTV4/I+dv9b4++Js+BCpNvu93u44FIaMZHlqOE3eMVy+hI5nBV7ylLvoliWoGo",
-	"JhfWGnUHK/7RfyNH/8QSbRa0ZE2vZMaT5Y6c7QlopZ6pGb40lnnCIse3VMmxdmZRq1P9dIazC2PZ4u31",
-	"bGKLlxuYxBZvNbKILd6rMIjd6XmFgjeQ661GUCHW27xRIb03orDbUNId3qrRxS3erFK5LV7YhcYZGRfp",
-	"XJbJBUvN7WumeIq00oCIrSdfIEpeO8yPoebzQ7hRtaPRdGDX3pv11zHaSCw2E4L6OamexNV7WNmz5q1f",
-	"PUbhBdu4h++aqLA7HnVHiOITAQ0Z3QEWuHl3PA/odh6EPKDT7XYPG87YI0GzJeq/G6l9lV6jxX57vwAI",
-	"evpaK755pn6goCv7fuOKFSnXTy6dHrn9HErmUFONjSK8oIqkUrCIsM6kQ+K8EJ0kZ1SzNI5IDNblzpjr",
-	"ymc6n+fyMvwmZ2aYLI07qy6eyIxANrgADaF1ujcafkE3p6ah5nZqVJRqtq/5jDU9mzJNedZMP+Y01zwp",
-	"MpqriHCRZAXo9dRZ2HMwLVElRafRYxVuGzX3CScY7fnrZ3tfu4/P5GTHXWSXzsG6FScLTssKK6vNwLbc",
-	"NNYTWpjhqTWHBw3YylBYrsAggmaGvrUqwB12QmZgp7VkeSCSnGuWc0rGuZyReTHKuJqylEwKnpqXG8RH",
-	"miQ5S7kGQhMNRM4mRWZ+hP6tcHn+8hVYFsg8ZwlLGTSFm0tGS3AN0cxc2ZTMWa6kGAjvf84YVcz6R91K",
-	"r5yuGRdO11sVFECK2HF7zRYWGllsdaWfmsfJYsrQ+pGYxkkiiywl1q7s3oXVEiQ2vIClsdkM6AtWJsYj",
-	"GaNbYjFdBkd7JGXGqKhem5U5g021+UIF4jAcBTMiw3jApnhMRJFl9RlMqTkqAhyFC4rWKTeRZopvWkFL",
-	"PuoFm+W9+nFlRs0P7EfWgQ5mdRxRyhLnpfQGAjAOLDjY1eGMBxaC1cXbhltUREzcqWC1g8bQFdM4lZx5",
-	"yyPeOl1azRI5Y3CdGimoMvfGSCBr9hEABO4ZszUzRhXcWVALw6385A1r5n/lCN2J88sUlbekKnvYpdpI",
-	"dst1b0JfwAGwrCigXXPQEPskLqU9w/NQ3IujgYgDUc/8UpfyzHdeUDN0ikthvvOiGTSSM/PLJRs60XWI",
-	"JviIxF5Sg7eY4mlBs6GR1swXViRT0MpMCqml4In5Jc35WMcdEnxLWn7NDBG0B6ZN7CaAacz5k7U0hMWc",
-	"m0RnS+IbQQ+LWaWFzC8M0wS3e8d1CB4nt0uEasLFhCndh1cEW3i4jcrkvOQNeC2pgNN8/tgb5MFnXcI/",
-	"zK8U5bh7ivS6ZCaVJobECz0QTirBPlRU+r7fMqUnNE8JiilwcRRpKcYGIv7dk9fk4PLwQOdMpCpud8hp",
-	"5aqTQmRMqZB0ZFyB8YJQNRB+USN7F83L3r4NV2VsZAoj3Ahy2CW1cQ4EOFkj1w82UG5VC4g6fpsz9C6Q",
-	"GsFsWwuKMCJwo25S1Uoa9JFQo7AH1agFgQqx5pSG6gQ8FZzRUmuAkbhTZG6qOS7BRbUkKtq72jez2L+k",
-	"OThfzHTg6j7n4pmbEn7h5gWfntHk4uX4KUwNvvj96vzg++9ocnFSmSN8fXbu54mf7WTP7Vyf2KnCj6fB",
-	"fO3TOOkznDN897KcOI43mD188RiXAOEn5gij/ayJPjnbXBI+aERXJFj+Shjl4Rp16bAb/O8ac+WJEdlA",
-	"empgFwu5r3hqjrF/CvU1c3vhRFzSTEWk23lgyEm38/Dhw2tVuYcPH1aUuQfNo9K5zJ4Z5qB2tN6dT9li",
-	"SnOQRk0j6ChWpHV6/pJ88+033f1e2zE5D6kZUcUyLlingac1qVrDKZ9MtzR92DcyudjyBdh/tuXDC5oL",
-	"Lia7DMi9su2IalzcDq/aTm0glVlHlUVr5Ny4VWdF1si7S+JuxKGW/8g0oVknIicZFx1yMmWzDul9Q1qH",
-	"D789bJOjh/fbfRIf7vdUPAA5FLFqI7aUIiU//WvP8KGWHXf72Dx6X8XgvPTP3Cfnj49J3DONEL2QhvUJ",
-	"xZLCUA73mGdk0CKct2MSn+0f4TskeCUyzQ8EHclLRn4DzzsvMwiiAIZbkL/+l/+lhz0f7R+qmIxlkZPV",
-	"ngfCd30Ydn3YvYqJZqLyivWtwtMA1rMs2HDlKnMxS7YX7Znl2Iv2evjJTGcv2jPjMb91r7Yk7WZTD7EF",
-	"89d991fPf3d25P46OvTPmfbNyShy1WRYeDmn7wtGLthSMW3YrJI5aZlr/PVRkZdXe24oh5iA/S+Atj44",
-	"7G0FbR3uv/vNf2iSsgFwvKvHnKCVBaWCDnnr1KWcUTNIVdX57MPUHPLMSH+JZOMxT7hRNowAWGXSKkYl",
-	"MJGXNOdGto3B48lmc72MUPLDG63QCCOYad10A88ZsheR2OpFoFrGY6NORrZdcLiCcjkQRrmEI1Mnjkgm",
-	"hlQ3ajV2uoUAfdA9XWUZmyw+tLTwrfyWBIaMjdqZe868A3PazXfQ5DcId2Z14qeCzGTKsn32vkD7tcxT",
-	"lveJ4Tg0Jz+MuhEZHb6L7BdDmfMJF+QH+O59QVMjDSTuuYiMeu8q/uvt3BTWmnG/afjrhYCTBtZvNnGE",
-	"knpqPjvF1IsEW1nbTb/uqDb1634jM6pzfuU6Dtc6Iuqnf2v94//7f/7nt//Y/uv//H//9H9FJJcLZcSm",
-	"4Dlc78qS3drabV5YNLNuvg4W3kuVv/EiJUrLnW5GOl7twYmsJGWTnDFlVnCcM5bKWUSE4TFkHpgQAhcU",
-	"AnWGlyxXjeIqRFUE/mB8HsmKVw3N3ACqjGZneP7gsNPtdJtNyNY5jP1tuoZP/IMfo71xRieqyaSWaEXo",
-	"CABIOBALDkcTkJDOArQ1EuQp108zOmm6/1NGLzlTGlWy6xoCJed8SnMwEPF0u4iAKAxwaDTeeZ9idSke",
-	"c6W5SDTeX+VUijHqEZvibKx55tqVsXK6uQ2gPTfbU+GnYc4u+fpDZbVv91Dz/TC8vTL0w0agiiG51438",
-	"OTz0MdoTTdfHcuVywUgLDqlRiaRgTkEvBOjn1y7mXPJG/oB4A4/isNJA5KYrc+J6jcgkl8WcpWS0tOSY",
-	"C+SjipecZXtwk1naV2ZYTae64oSuYy75ZAqiTEhlDSfQLDeKLAymVaAua124Fe7WvqEFGIxR183rDB76",
-	"GJgqVLqBPvqlT9kltx7m1vLgqh05ofm//9cF+S0RZAHzJiqhGbvpBMBHce0M8Cn7vLkLQwkknmbZy/Fe",
-	"/4dtSMa7ugT6KmcKdkoQKognuP6+RcGF4+g5zJk9hmhwRt//cHuiVRNSG6IE3eLjA2vYPPgRV872pzJv",
-	"pakutrsl5/ho4P6tTuPNyZvnJJGlWlWabComHW/AWSGQTt4ZbkW5vrdPewpm2dm179nHPkZ7eJiHCRUp",
-	"N8LFWtLkn7iniEpkzqzhNaaFlqh2ILKcjPmVIdDQMPhbM37BSAt0EHPq0B5qligQB9a83N6ajCE1OnGj",
-	"bKJlbq5SXDLRbIP7vVzYzhEqCpc8teKLMCct48rINZKoYmb+ES6kNQ7oTLNw42e1/R1+619ZvcivXZwd",
-	"I4UZUwsMCIIRG10KNmm7PXiLATIObCoczRBM4Ejhb3VUtu9kKqViCsi/njJV6roRoZmSpcvQcn48A1SA",
-	"MeSY0BHQK+uNKg+i1ZRHDM9jWpuVn+6tzysYKlUXyNig8z+zXA6nVKSZ3eTVw2UeqRIDhSEeNsyTLFjO",
-	"yAWba+ssz2VaJOYacTHmgmvmzucxavVuXQQjNJeKXQ9lwLhUJOBeWluVzaJqMK1Tuy3tc7JVeKqbV7+J",
-	"xjiRvelO1pexplmvcpOKDlll96ATVd0bpgPvNAmUXi+aeYuAl3ydwFHSV881ooq5o6LsBdaIFWWq0f4J",
-	"4eviqbTu4F2gP2v89TOJ/jQ4pKAHba9MjqjijYCQpXWmo4CgAmQsF2Qh81Q1Er8bmWacge16zlzMZjRf",
-	"ogo55zlT6/VtbrQgeokUKWFGjC5v9D1FrJ+C0Amr+QikYGsXcI3MF6hmVOlhCJ/bni59H77VTJoyCk79",
-	"CkKSakNaHHuiOq769Zs8HSt2ftgBdxoihEEFK9w0rWCv157zZ1ztim+78QHawbZXO0p1AUKwKz1M1lij",
-	"0UrtJD/zKJmXR8jqEGa14OvO9UemaSvMHoSj2GatUbfbzUz9UrAVZbRMwJByOhFSaZ6oY0KDjwAM80eM",
-	"61qEMWkJieYgmRtWnkupQSwY0eRiP3BJ2wfQG9qFR5xbGlWETWFhBWQGaLRiBiK4mRT0i3zW6zw31OiS",
-	"um93K9MnIGw5Bvs2v3Rtx84s0IwuQr3thk17Q1ajmSmnk5uO2UMMYC+bAeCH3e5Pf2nVNhXslZWlbh9U",
-	"Pt5YH0eZ4cbzQelty30P8NbDsOfmhAPZkrgXFAbvwws3nCnKW+uMOXVTB6g/x6SL99kdtduAgeHZqt+b",
-	"YCn9UP0hDrZpzRoGB3PldkUrBKLxHAYXai1BPfcWg7otCZCnkOKjQx6VQCjwo80xrHiItp/42OOQAcBp",
-	"KF0ncL9Wnzac18KJYNiIwt4WV1OO+RW2euYaDX56VLYffHvmu/KTt+xxV3B6xSl4C56+ildlu/bGlGcs",
-	"HZYOv1Wceml6wtBSdBdw9MfOqVIhuk7mHj1WtVOs9FwXJG7N3r+brf02jeXXRCddTzN3tSDe3Ei3amW7",
-	"oZnMavVbmhA+n9od6rcNKmr13G9QWZso3mOeFc22MvcLGUNcBGRa4kbRhDBSLqyyS1oezvhbSw4Rg/P/",
-	"/K8ktU20j8kh8hg09nRuHCe6BdztSehj3EEmvs5w3mmAQtiAmE8KcdnsMnLCOWJIrMvM8jBVoUo7kOv1",
-	"kl/OMLEFa4pbXMPjy3eaDtiKx4mKCRtiXA7EZl2nWJePNvxU8ZtslcQvnEH4fmAgsj3WxhrEBzVfJX/w",
-	"ttPI1mzJ9jFqlb1a1e/cybEcDzqIyOH+iCpMxLHiUzy2ybqa3qxf38ql3OynbTw2GxcwyIK3wxKWF2kr",
-	"a0Btuyp+pAd2Tuujg+rHeDtLz2t2pRssPGh1Y4jCt4H9ORcXhGoyknpKmEjVsYP4p6VFPZMLphBRP+WT",
-	"qfnbIgBozuyrXqqv3KXbGa9znwMIreyotuP1i9W09w550QANNfzHwjxoHeShQpQHiVOwKQgL0hgiE437",
-	"CA3Fcww5bMhMQvQNFWRKs3EZvqhp5hzANrCgivuI28ckHrPF0F8+NRzLfKh6cZ/EhwfqTz30xoDLBp1e",
-	"A4E9w7CnVNlAAr94MIyKiRICVcoe4ip0s3GSRg5oGtaWSoRd/se2aYCvvHUN2x+fssWZb/6pzM97oDb8",
-	"ntFMT3e8q6XA52YlL/CApMsth4z9vvzDnhvCGb5cP322q6ZDF9DTJri+DWylIoheiZzTN7LbFTnMXE4U",
-	"nc0RMxDAUL8+2gqF+q6ea7UbfX3/YyMutcy0+ipn5uDfmGIGGtj2bOcabwRm67F6sfUdGBXYXIhjIuSi",
-	"zkm2k5Kq+MWNWkL5pNEsYE+25wrlkp7Dm/WUQNcwhnpYsRfv3Tgaj6HFVO4osAawTYfKLJEVodEMUcjx",
-	"SBYiDSNKIxJncmExxYZ/xB4l3GB/xbeb7ZDrIxO2t0Juk0JkXTTDjsYpCFiwQQxOinXza9qgZ1QzPA7b",
-	"ZVG7CWIaDwjwDhetiXHT5kZAdBy/dKx/18tzo3ueBprhpre8BrmV4aMuwgbpjzdjpdyDjXp3ec/KFhs3",
-	"soRl7nbXXk9D+cEpZBnNJxBra1psEiJWr9FNHAnKDbg6pv/+XxcVER3THaBMAQGe9gGaZQ5n6H6/SaqU",
-	"uikXR9W4yjeJ6XrMNEvQrylS8r6gcEysqxM99RFivutIKwUZZeeaxEnONU9oNgQLRExa1CMv2puCnmtb",
-	"5FpJNgf0nZ6/JIeH3x7d3+8R947Lle28hLoe7Hc1TG7qgqpM7ibDcWsRkeWNR7EuIcfv5cL0sUSAi1tc",
-	"cPQtpkuz4p01+T2YjSJrzksQzsoqmQRfMsPE+ZlVvWm2gUw2uBJPT35P/tgjfnB4/iJyv3P/p7/8+z8f",
-	"nN+4s/drO2s68RE57H5Sh4pPZrRZXPMn49//Ge6VOxx4paqwrBjaGQJKwIgPW8Z+BG9tr3Kem5e+g3ea",
-	"oRD//s8WDyeYIXKIQmvXcWRBkAJEsKzDJbYWU55MsUV7RxAwfP643WmQHAy3Mdu4ch+jdXRj9ZBvzHDw",
-	"TE54Y/Qwpji5p0hmngCyFSgSTotwKsRGDeK5dyvsJMa4hArXZq2p5+YrRZAdUt9Ylv7xulimbTzx18fo",
-	"QFi+Na8aGcy+soOCYvsYLbdOkWRfqfa+hkwGza0Yims4QTP8Cb9kzU3N6NUQrsKQTthwKosmwPYLzyrt",
-	"rUmlhXnMeX5TDMWO0Ro2yceqvdy6TnFkQy6GY4epW1VMtneP3cQFFCIi5Xwr+JJ/+6V9fk0ClcBhFG7N",
-	"dbhMN4oa9tHfvii8xuvXsvmY1PGP5YlvImRIZG6ABEO7yvaUwlKz6xJkuWbXj/WGRpQb0EVUIz+RLFbM",
-	"EteYq6skcztOHBpS3q2K6xgP2u08fNBpIFHXW5W3JEVGsMykmFi/Y+i0cBVVlKbLEqh6TIRE8ekWXI7f",
-	"fvPt0bV5lm9E17ZXkjcQvOb0WBSgDEZJtWmAIB/fgkJxJcSkzOiSjFgYCuRMdT7bJhz2dnOKrJ+JWNpr",
-	"00wxmwijv16Nl97tW62SAsawxWRJfktGXfIbMjr86S9XxySuBLfZ3+1PPoI7Hojqe+bf3k9/ufrp3zA9",
-	"ybdHX3+936ul+sGWAZIedLEX7fl2tzSKw5yeudaCTy9di/DdH8tmP0Z7L6GMQBPo9e1Uktx6J0ob+DGY",
-	"xP0ZdZXMlhjuAQnk4v8Y1+zg21YaqxrC/yPIsYe9b5oF2VcgE++KNL4BtijlUPlijfnT/XoTuJJZg9lc",
-	"r0kUPC6ybLhWFMpkcrFuTJnTI1a95rJuEL8G0LSiBOFJKsfm2lydlB9jsITXYlJwV28gOcyZnGN6me1s",
-	"/Xh6rpuvbXX9SG8mN1S2NrgoPcvMg4vSsPF2czeGbMNDNj/hQuZpvaMHX1c76kbbHBZHs4C2Kr3nwl2h",
-	"+uB7um+RjACUSA3jVBqpy7tmbcQKLUebJJimygs7nEq/AI17+IlOtL9Nz9Qmf1S4IiXy+WZ+xdsJFNqU",
-	"wQzdXdUEJoVaB2NetQ2AALo9VBGfvxFgEV/dHZ2IyXlvclLO4M0mG8oa8GRTUMqw5mKxSMXKQtQnV9M/",
-	"3QyuiWdZGfjON3GTvb4aIILqhBFs0irQcSXRLcjHmOi2DGmxNhtnUDffLKRLI1HJqklaMZ2N+KSQhRqa",
-	"9+Ob5kUIPXJbnOw1aVNiSD82hLHFEYkhT1n5kV3pnM6x/CbkPYWnM4k5Tt2n9+YnwSaAr4e/JczNaCdl",
-	"y9VpD0TLZkoLo2Mbl2zCL1nFZdEH09ZABNkz2xGJC2HdtkPnAY87A3EOiXWcR9WevVJATWieL2HEsLXg",
-	"/x6IWEg9dEZ4sw0xIIBIjNQWD2Tcvi6ldDMUfOUxHrj8N2qC7rngnWGJCm/0wZRogAVVRI405cIHucdj",
-	"zrKM5c0h7DNGxXDHcBfnU2yyIkLtVzkmHpYUREJTDOVIr0/zUstUumobNxLHFZ+Z9lUl1UQjHsJVwnHX",
-	"KYgCNVecKQ1N3UYYDE8bYmCaE69eQoCLi5v2i1rfk4AKrJ6IzTTVig270dS/JRTAZt+/q7i3Gtfz9IQ8",
-	"PHrwDbGV/Ah6Z9SqZ3id8xNrMID3CUon25TF3CdliIBnoCLRnBhrTeaUpxKg9jTjtvBhZKvvNZQxtNng",
-	"txQRYKpPzcuNZEuUUYtrqxOSOcUsTQ3AbHjAilWbyhvG/7hvxe79U8NvtCTvC6ltqnyk9VjV4UG3uzYZ",
-	"elO4lunn969fvyL4ACRuqSCXH1Sy1B51GxM6aa6bEpaeT2WuicJgKUdl3PkxrTQOVdtKknXX3puzU2dP",
-	"WTpsSdiYo91FLvrAsy4Ym7O8b5/p2xMSW1K6XnOs3Rr41c0xiCjZ4J6sHByjcm91QV67PPfcFe3srA2F",
-	"aAJjmvdrR75PKPmH85cvyCt8yXA9iWkLZbqMSHyQccHUwaDodu8nAv5h9lMis2Jmv4oHwtzNk/PvQYqL",
-	"8Qluf+3b1+mM2ccJ1vP19chRINi8zm5eG1f2zGW92gE08zaUmqIy1Nniwu2COGg4eiqgdLHYh0wlZVk5",
-	"SkYZFRdhIrQguFszyInersnGua1IiqkGqkfhUyCBtw7za1xvYLFM7Ro8M5NpU/1dw7H3ocpzjAcJvpAi",
-	"W8ZkMeUZyrNBTWfiSzpD6facJRKiL1rQiCJUqAXLyYPufZuJKah8HNfsx2XnVnaAjnewGZvFeGvfd59f",
-	"QhNloIlaR8tp6gQ8RVpTqd28VJtkdLJvy0hpW+fayOETSbR0cC6oJ0NvkNrOotHLjaxYRL4+2pQMLFy5",
-	"bRfKd7QZaY6uiDVnDurSnOvmGs7zXKLXl2bhoUENtOLAOTbny7SFmooEELDGSuGuMIGRCTA6ooQVoX3W",
-	"JQ0pcafHJDaHbMqyNB6Imu4LcgwGCke2hYgUYsw1grBkTlQxZ7liqYV80YHYqtuOm4YLpfGFbXgyrR7x",
-	"YG0wtNtOfi/acyPfehuhx1eVBu2XZ2G79ru3vnnYwdqZ2414cDEs1AbXHV4RuB5mP4VcNDvgMjoZKpZI",
-	"ka5xmY5pbqtNjNiU2/Tj85wbeSUi1AdCQ8YSCB2tIqhsffI1qf43Vkf1MUarQUNckwnTaEmBmbYKAfX0",
-	"zYpHhlqUpUlAs4+AAXlKGWGOLtpeI3XC3qx2/UpajzEXZH/f0eB9IJRFnlnGeViRDm3cxrZRba7vyG1x",
-	"8/UvNevVgL2gRIqLwGtZP62ztFjNFVl1IvMccWXtXapFVOP19ld/W9nRs1A/q+dEKBV7l/Ttk9KV+iXa",
-	"zboNgyyym1XW22Ct3sWhl9DGqx0U44OM7mh479C0UngPkkb4zyHxjEGawO99VHKz+WYLcPn1MOMd7eEX",
-	"XKQhQ7W+PatOsGEyNbLp9rTZ7+KJbyj4EjjniWvSqAxm6WShwBC9A7ilwonXpAM0v1meZQXfMWyFLazY",
-	"kF7rmmhl5HR+pNuPz1nQ7b74beVCf33UmN57x/wLcCiHa4yVir3fTFNBY2AsPSZcmNWBRIdGZsV4YihN",
-	"WCFR68e9nV/CjMhmK4Pz5y5ffZFXzkcY3O1XNJx/kMNho/OjctPW0Poi008ZSz9DIrQdy0qGtLIp1TlV",
-	"w5nM10AqN2ZJe0WVMtJFrDhUp7BJQSv50gC27YLMNu+znVc9KZof4DX+pDOfh3nHUB+LkkpZYnMmz31y",
-	"iITVJWNwfqcb0kOsBwMHlUoBF3wL9VITvk1+fVyZx+7pDWLbi0pKwSq4eLcMd35swSW8JqVCbZgh+gC1",
-	"HJ8uaWv+Yhp85F/Gz2e2iY/lFzdBAtzG4n9qXH6QJUBLV6TOIyUxONc6acvyL531e9W4K0XGvucyK9Nc",
-	"7kDdLFFdY0ywcHMuLmV2aZRJw114Y2LwbfjaStYG3Og11VkdsTrc7ylia0ZFxBxt/1NYerBZM8ttgatr",
-	"gCC+FlalRujmCwRN+0kEBTPLRW3eLrFzFaO8EIaMlyVKbiHf142QH9tUV3HFhnYtqHKDkI25VJqlZE16",
-	"9x3zkZ4VAmtMNZxUN4M1cBdtmJF5p7IAbnQiTDX3T0hpE3W5dTUv8RR6/4fzly+gVpf9fHL+PdDIm6Y3",
-	"294jWHq4d31nh4Roci3s9RN43u64rrMiAHQ1GCzBQL99c67WwrWwxt3ylFVyivmV8+d0fWhIOIdycaIy",
-	"3+1mCa4QTg/8nOmEV40zyD/nLHf5P7a3aGy45dvepEZYwdYLuFUdu1vIDHLH+f52Bc5tThSwkkhvzerd",
-	"NCjoBgzyc1LLkPhtesvHBnwKZfPhTnWL3kZyt3oJjca9DC8h+DgA8rn1dXT0sWFMD3aD0HrauYFSlhNa",
-	"e7w8tvOOqduuKNIQ99YoS+9gYVoRZK2JZUtcaMkib8+ym65NfHm4jvVvAYZbY0GrIJx2KW10PQdvSn0S",
-	"zG7jct4om82XXDK4ipX7sat+ZbGpDm/KUl9Ev1TVMcX+4rbVsI3g/GtKmDfiJqvO4gm9xNKLkF8CIbSA",
-	"arwx7Pkm8VpV1a5ZUbPU65OqrXmbxSrMlCRGhfQl1dbTm9erGPRPSra7JalaAw9/DX5ihxkl8JRRhONX",
-	"L89fk4PLwwMUPA9+5OnHg/JJhUWEAUjtgNWt8lg0lD1ug2NrBXY9EPCarTeas3GQmwNdjMckriFfPWxg",
-	"eUOAdpMJ2Fzse4rwFPzlmDUc0OljxlLIDqgI39avcUuA71tHbG9WkavgjDvxat0GX7xld9cK3PwmmXdC",
-	"5+c15itcFOtvlDlBmI9ZcQfPgFa2N2zdQvnCCDE4JK78tFqS3GYP9OEXkEGQiy3LlO3sd6tK16HEsx1i",
-	"fhcsfv36hej8qpOxdk0adn+31BmhaPG3qBpsul+NcYg7aQPYu7qZYr6rDltP/XhnQZfniURwuEcmFkL1",
-	"S0wnLE3fnHJv++mX1UPSGRdbmneho7NCKIf3xC+wgzNsH74C84vyxUTgu0fYkRlvmaerkX/++z87MoMJ",
-	"zlpnvbbN40eevXxMfltmUwMS8uzlH8lvy3xnAxEDymmo0rgPzZw/Lr2mLu209lWkAM7cgvguPZWKDYQv",
-	"4+xR0WNAMMcIjrbZk6F5dfDX//K/Ya5ED72iUFR8ICyUegUyHblBQfSar4bKZ0ZwUxYd3WLvC5oNHDI9",
-	"SC7mUHYLW2W5fVytMNqvvxANRLkKNMzRbkijHcGxK8oJIpTN5NHuk3ItA3BnXggIa6xnmzYsCPJjI8ys",
-	"BHaxzKzryvpVcZqm/71oz3UIGQAqz9dqOG55aP1pe4Ttl198Z3o6TyvfPYMuMdtn9RdXEPo8dadYUF3k",
-	"bPdQU82EHs6oTqZMrQd04i4mMk/vQVHFnAntHThK8yyDPXC5wafNTkXXnZrS3oOvG8JRfv9ov/fga9Ka",
-	"squ2D3qjQgrIAglxEv7ymMGAc49PBEoVG2EEq2bKreWs9TkoZlTwMTNsslElepUb5otCdkQMPwdX7JvX",
-	"J2jxk2ZWRvoB0RxRRtNiRgVgOjEzJNRqmsqFWuets81W0eCVckwWagyCBB/xjOtlYxaDOQ53faKOjfKz",
-	"2Y/hWsMR/OoCh1ZlVdjDRvnyzeuT7SVG384Q1raZpEOFbowM0w72ldHRPYUu+j9vqp+5qofxGRuaVxrn",
-	"teB6muZ0QbNNuod7SuxkGyjfarQONEcWltsQblnk005UjkB5tsIdWl3lcBVWLnm0QmTq16ZRjHAE7Qbp",
-	"U5R7dwdJ0NPP64yVQeMbx/3p0JvtIUI7Z1LZimQ0UogtU7BsrH9TTRLTvU7D8kfT9V2Ov3EHnOP4FnN9",
-	"3CDZ9abaRHdhRC9VzOtqFqqNy/bZbOkri3oN0ih4OFzez2pY/9RFBrzbKmorZ4xodqWD6GrI/pcgvook",
-	"U5rTRLPcpwjXdBSRjAtrxDPCRELznNOJkYx0kYta2rJedzUdU5i37E+DwVW3u2/++635z3fmPyfmP0/M",
-	"l4dPB4Orb56++01j+rLX8oLdFN9wA6P49oLbWkFGGSVwB/YASm2DhQAgVWukDJbkTHfI+VQuBAE1ypyV",
-	"Y8K1EWmtCRmiDsFnsqWpCXuMXLZAO5Frc5HBFt2MJ7lF3M7BEN65BmCnxEzqVJOF0RkKxUpo2jHIucJZ",
-	"qdGDYOUzWqRcE51TnoEbQi4Ea070NwuwbiOWSShNJPskxsTTNhIamIoLhZY5iUvn92qsdGcgbJ7Qfi2F",
-	"YAVad09hrR2MrI5Lw0dsNGczHppJwVABxUA2GJKFs+IjXKkCDfKgjtYTqt3aSb69jGXVk9h4+HImbpMf",
-	"j6hihvhdm6DV9Pude/iG0M1rSptmvkjEFkhZW1HCUCapm9VtCuHuF4zNzdGfcZEGtRO5ItrMibQoCQJJ",
-	"iVuQyAGPjW6AhcbAr7Zj3VefFGCrBX7ln65UgdzqOGIDrnDdCnXNC5E0V0l/nResdNkuuEjlgkxZlgYl",
-	"0Q6jbrfrVgSz52dY8E1mKVPaPgCVHswaN9ssLh1CfBfAUAgsvxb+0FxItdyEoKSjP/n+4FUGGC6ZO2PX",
-	"WKGrd+QTQPCfBGg3Av0NPVSiOeOoajg0aAAvs0Wk7JKjq6gloGb74brMEP6G3bSABcswxHV9tivXg7/C",
-	"UIDEcIYtRANYP5i0WZAQSR/2vXb/X4UX3ppbTWeZBEPBOqyAP6KEWro0llkmFyrEbbtGwA1lhNea4bRa",
-	"FziT25pSqwM/t71Uvz0N+qz+EthPV34696Op/vBMorE1IFqfAU25ayArMxS/mWhWjLlF5g6ZfwPr6nPl",
-	"QC9jH07i8iaE1HTGMTk3PKzWZNjmYhhy69UHbgahbS4dBJgPt1v37DQ25UEUzHBSm9VhzHVkrro/qDcF",
-	"+uyeGbPKY5pzDikX9eSfdeFFwZ5tDR+the5sZFChI7vit3YVY3zCkBKMXJ7C6hmozLWJHsExDi9HUUDP",
-	"obLa3X9I98eP9p+++/Hbj/vhx6NdPh72mrNxv2mEHTwiADwAL1UiU5/MajY5eBZHJC7svz/M57N39azh",
-	"93ublO//Yf9/evfjYXR/zXi+pzmnImE+0fsumZUg5Q4WdEVX36VtjYwLgdioWlktcv64Ty6M4BnP5YLl",
-	"cTQQqnXVJr8lSfenv8zoVesqIlfDGRftPyWHGCENHzEjyoxmWcXViDCpgajYSo5tFzZTvEpj0mosbdQO",
-	"uye/IcnhT3+5QuWoJo10ty2jc7jlgy4nwGbe6yK3u3vQdNOh/r6kCLWkChC3aAs8iCWZGclEy3yJuUwc",
-	"abJRe2shaCG/nVPlMphvyUnt6F7hi/bTU3gfx+5zOOzK73Zhczewsd4xonIbbltmimtAZo/HLGciYcN5",
-	"097/+jEABbo//aU1loVIQQK1OID2gf3jhiwIGrwudTDYnkY0udg2VXBJI244rN3TcVzDQP3J/IN5fqPZ",
-	"HfSl5p0wLPbDrx9/INRIrywlo2W5DveUrZBcKW21xek0F3FdVQOXJc2N5wZreWuYwzJsd0VatEmuYOnu",
-	"KQfEIImcMWUhwVsZLQMJwlLL6+3n7hDXFmvlXoU76xfdX8wgunhn+Fp4vj5f9J6FSPmEM40K48wwC5cR",
-	"2j5ZA2COGOQSMdwUgQMN2a4CffmyRua3vXgrG15paHU615gjVu70KsvkgmtOs5i0Tk++R/B1IoXmouBi",
-	"EpPWifkWBAhL58IRhZzSNmQ91Pj+9izTN3nqm6kcmKDJ2rxu4NK+yUEKp729haa6t9doBtUudtjaG0Yj",
-	"biw87aw6YenpnQqzbwoZeWHxebUM3OggIN3I+yk8FtkoCjes1nW4JslZd4OMemNG+VkdqNuQfcsh1jiy",
-	"sJbWCRUpT12mrB1OUHrJFVsTKgHDZw56mEylVOuyY6BdbmMzLv2sq+Gx2siMXlk0IaIeh2sKZL/epkQ3",
-	"kSIs7W3OX8psfYfErVYo6NmYLKNHlErETeyvUrPmLIm07BjDvy74fI7aDLJpSJJ4TBgU/pR6yvIFV80p",
-	"p1UxG9KRGjYXEP/w67MnH9yqGIl2P6FZUkDxB08Y1IqY2zS6G67CTSrJ1e5GWPAtmO7ac+JPYeSPtd2N",
-	"9ffGDrC6fs8YVXofbbDKHifVIfHhwdWfup0HMfnrf/4/zKfln3qxO22Qvd05pkZLQgcCjAUobtQjMcCC",
-	"aK0LrUfZjPGUEqYJzToR+YfOQJxMczmjWk7yDvmOfPPNEWn1ut1em/QOH7Q7zoDhxmY6PDxQrav2T/+G",
-	"sGg6EKt2jcBocfWn5NAVj6dJLpXCu6KIliSTkxZ8Gojzx20fwWi+rkyjHdmkX2a+vla9XAhy/vjYZiml",
-	"A1EeKzl2xAQ8T3DwEOTpbSP2xlqXNyoa99RAxCtFBjt1eLMvgl+jWIj3Dg43ZvEPLDOqmAH6eqRkVkDO",
-	"ywzTcmL6fnuRBmLtTSJ0JsEhKRWUXMQYGyErBGgmczYQ4Imb0mzcRLQ65AksByqcGBOooNC/H76CrNJ2",
-	"OYbl13GEVVD8bbZK2phfQWIbVYLZq8BugShFe7jxL/u5B/8u/fdL+xm/V/Av4MK3ExL9lXuBXfrPp+Ly",
-	"/H2u/7H23crnXsNL/6n23crnlZcqXwDs/F1ID16WNSx3Cv11ZzUIGrAnNbKH3Ffg5FnWFPaLepuv7b5t",
-	"NXUQiIKb0OT/q7vHqi9Ela43UstKxc7bW6JjQm3Fi4yNNZGFJppeAO7Dq9l3umA1BBqD4BAfkNJIpARj",
-	"qcLUoZYca0lGbB3Ja1HwB+YwU3Mn3VtG4sA3xxmdTFjajgYCHsZRVMM1SBzMuk+wbVwrYPbm4XuKnD8e",
-	"CDBIEFfR936fUEOZbdzMQpZNGnJrxKWUTXJmxmzeZSyVM9IyG/DwAfm1reCk5lQoMwVEIwHVNLv1Tbft",
-	"ATql0B7I6r3GVMurB80DxG+mEt1NBcXd4Lu7lOpoAPPallevIfjNkyLnenkOMjXMeMRozvJHhZ422AbM",
-	"1zLnfwZ+3SffwbOopSWAr3KILgJAKNWvwLQiiF3yAWpQKawSogbVwNIZF/ExUYzZGjaQWoZLcU+R+Grf",
-	"zXYfAVE2rAiVAiP/w5BKEXeq9Xzv40dwlY7l6pSCOimYP0FVEmwXAth1Rkcyt46DwPLhGXZkhB81ELTy",
-	"80oyqAjdDoYMeTEolEtIWSTcyHsZT5YQLU8UA8+N1XkiFAGhqYjMM6khnfYly1UYlK/g5tkM7Soif3zk",
-	"EpaaJqmogP4GYiC++grFBdwkFytPNcpena++ImVpciOMmatQ6CApBUpGtlQDS0litj3n1EUJG93KUl9F",
-	"ILYCqce8GGVcTVlKJgVPKcA4MarOrzsujpmbtrYBDH+eGNnJUEGBUokVU85fvgIqNhDznCUMCgwee4ue",
-	"IbVuLUDYfF/QDPNrWMigLUFgTX4d8oQm04GwFRZEGqY+8JJ3zuaMaoU6IRckduaaGFb3V78iJ1JcGo1f",
-	"CjUQ+xhvhWwK0wSY9VGCXrBhAr2+5u7bs6cn5P79+w9JK0btqU+8uSU2BJ6YHt+8PiFGHSj0vNAdUpoX",
-	"4BBjehAzPAiKzBl58+b0MUFKojpmRFiKDX8cc8E1I6dPnjzZ/+bBEUFlTXVw2BZii0XyXtAXEJAu4J3l",
-	"sRmOhcZhyFpQI4YrTVrU+t/gx4rDzZ2pyPA9UlU2zWqXyLtcSt2G5KRGe4yd8kCJMrMWLIMZWbJPkOgp",
-	"myjC1S3A1VekFTfxhD4WN4cqKoQ4q4tvyixSkkmjaFMjg2RZRBRGcGpUA8z6JRiVA+5H6M20BeqCudO5",
-	"GW1qA/vg4KQyQdrj1wwJ1ogdkyTjhvEQNTVLZhrC0EA+ERJ2DCajp2xJUgnvmllGBLIsE6Nk5MSmCFGE",
-	"pql9A7ceTqBRLz35U5EjXCqyF0tFTrEDsoSBymYl4ASW561PDo0Q8vUReXR+cnpKMqY1y1VEUj4x1xSy",
-	"AXQMvR+a//TNf/bjCKdEsZYXKFbUvmrOF7xLWsh2SVwe77jdIW8Eh6QFgNVH9IVpLcD209znCXEX0vAz",
-	"04itPwJzArYyEEgK44PLw5jk0qhxKKDtwAMfWcwxhA4wkIkGwkXNYj99M5AP+IF8AHnuA5nk1Ozyh4H4",
-	"sL+/7/9vHgzZKfkQ7hX5AHk9kWVB9CNst92iyNbfMT+aOxXhw5XqK6X62To9+f4A7Py205Brkw/k2enz",
-	"c8DxTFx5zg/YPnJzz5MCXhTV6mxGzt8JGgxjNlDa5ssWZiUSZruvygjkg+FkStPxuLFb5G4lazPKgM1v",
-	"7JFWx8SGfYfWKxvyWjG62xGgUEI+kEqpajNtEOWBpJruC8eAcBSw/dDGQDypyDIk40ojQ8eDgBTANI/s",
-	"FpVuKKllrutANIg+fULtCZvKDCxFX31lyIwU7KuvrD1gBlYT06xmacfNBCqkmiGwlLAro7hwjRaUHIio",
-	"kU8gtZDyJM087Zh+xrThToZDv5wz8ejVKXGSpMsr7dD71F6hcuaGYpdCZp/88C4eiJZr536ni25iZS8F",
-	"LhQYeMzteGle6sHqmldOHxumKliirV1YGWL9yIHnIjKjmWGYWIoIaT6cgkt5wVIfE0COuofHyLK4+9Zy",
-	"GiPU2ZXCAcHT9zskPpgymunpnw3tOoACUfjnjOmcJ8qmPDmQcybonHeWdJbFAwGyh5C2k1bsFg4Wou0I",
-	"0xOwFDkqhEVKzUYKslKGshXDVuGBPbDf/uafFKRhQVo5ELEtyGcoZUOxyBgtU7GVQ5pqR/YNk7C19EYy",
-	"tczMiE9mRF8/7B5urLPHOhPgovGBv3EHvYNq1hjSigd7g73YzBRg51OZ4fvtY+z95Px7krAsM91uXbkv",
-	"IrGIbcbuETXsej5dKoh4B0BwC0RNQqaMpgyWGb4+bDsImu3omwMn6sV2OCVA14znupKArrn3BcuXfVC7",
-	"zdjmVE/7PEXmF+Mg+qcpm82lZiJZ7v+BLSFTA3oarJw048rIt8KaAMKlh4ZQ4ObKWf9z5Ku24EZ8YI/a",
-	"c3c9iFoKTa8iW5rUaE+WxyO3DWCRho8edbvHeHiQcHE1EEYC2retjQpXwdFIakXmfSpG6uEJIy2jf9js",
-	"nIF50Qk9A2HunJE//LXFJyJIagG5vni5RuSCLUEWPOr1DN990O2i+mLoxkAMEB0taIZXabCH5HnKDG9z",
-	"NUjjY+u2MALixAzEnmArqWXSHOEXEqi96cwK1Igu89VOuapIGV6lQuHRyQLVgqZGIg6XTwoGYqxHyoDg",
-	"B1T7ApCzoPRmPGE2nRcGke0Z2TXnTNN8GVQlDZVcRJEqm8Ky0+10bZpXQ6P2+nv3O93OfcSDTsEe4Kic",
-	"+XvCmoCbUIBQkV63GxSjm+cyYUoB0cr4JeuQFyA+OcrX8fmhuRSn6V5/73dM/952VfOF9rrdIJkGWHAC",
-	"ivdP1m6CB/U6Ww12gRaB2jxgmGY1HmB/Tc34cWEGNkEzoNQVY8pe/4d34GKamW3o7z3jlwxqwEV7GnLp",
-	"/VDOXGF5QMcz1i7yq1ya888KhZGs7GruCuugPlhf32N8BMr9AfM04q3hPnoh8wuM0rE5exXReaFsQNzK",
-	"njy3I7t2T8y4DuYZ5bXdqBusVhbe9nAXSx8s28zPY+0mhJx67U68njLihBWvqwVUYkEVGRXcSLVgL93i",
-	"2Nvmdjv2bpA7LHQ4dCNnueFH5D89ev7sLtb/dajRblp6FJ+2pDHWI+WLpFL7q7MBWZbFfSadiDzo3h+I",
-	"0gVe3xUSz2TKQPC4tiCrEQjLiqzEoef6tlQh2HDMUUidnwa0NT9IGEmrWqWVFELzrITZmJaVIaEzCaYQ",
-	"ZOYB+xwYMYAnDFy1XCuWjaFGJlZXjQPtolJ2NSJ8TKhYRiAFQKYonpOMTtbc/TPclTskx0FR1tXzCt0b",
-	"JgzreePzad66f/1b57i0bwS9pBzRCJuOdjnyDcfap0Fde7K/+gos5f2vvqobx1f0Xpk79Q0EC8y7RgR6",
-	"dcY8N/IS1L9BhG0cBJPEYESy4rwVfQQZLQci5mn4Y4c85RlYSxI5GxkxGOTFRy8eH5PYEDS4I1xYzBWq",
-	"OFrGNo+a+S4iI6mnht9URtAhf2BLxaC8FxfWeDKnSllxAeuvDcScTtg9ReKglFcMpcLc36W/HYLBcbjH",
-	"tRfMNQU0ihRl/VLTtJEO8SEzETmn7wt2DPJW1VCZMgxCkTn42BHMM6OpXRAgJa7zCHXCbtMtesaVPnEl",
-	"GLy+oCDO33DKPdAGXMKBfjVadbs7FKLIPkbNzZZxr7fXps93eXtN+kin7ZqshK2tazOo4LBVo0FhiPpl",
-	"fULzjJvbVjnZUXkfID6sYQzm5lQGsA1ocrX/Z1Q39O5v3rreIRPep/b9ik4YUfzPa3sBhbbSkY90fdAN",
-	"HLm9ih+3sWRuk8xVvd9Wm3RkA6/2moH5eoBbHyoFYs27O+R7cHIBqNzA914KBhOCSC2gHcD7jrbhfd/R",
-	"1Hm64ZXD6195I6g1abMUX9qCWz6V+YinKQO/91Hv4fVvvJbyORVLOzr1M3Fzz79PMAiHGyV+GfBwy6/f",
-	"RXsrBlfM47VNhtUq84cc6HcgAWD1WbBBjLnukFPkUt4tK0XCopJf2lTp5lakiPrCb4bWIICZ2SEgH4zA",
-	"RrLFltaIh1gxaIWtNW1M+QgefZsl/27v1zodCIsk/8KvVPfo+jdeSP0Ugnj+Ru/gI1fEwhxRo7kBuMFi",
-	"JMCH5ZJw3PXtPACH0VZ3dPOddOa+xEjiKdY0tpim0r/lFNW8EJFLlgICvHWqBN4rMKDN50ygTrrpJj6C",
-	"KfwiryMM7Zlca5XAAr5fruQv4EoGRw/cd4kl8u4G2su07gbucOV8lXo4bnOpPuniYQShItRoxDjqiOTM",
-	"gtI9E6zFmnostsz5BCKQHMAEylEDqywzW2dcoNeQcDDNx66ZoRzHx5h52zfk+aiLHwRviqZLAAdZwaND",
-	"zhxqsjoMn5bcvOE/Ge0VkhU5wJDFjraYJTvQ1kBAlADE7hnNNvbY1Ji0rA8MIqpAj7BmZLActC0B8stj",
-	"nUbxHM0DQ7v4x9a0ZX36LsNBIe4p59UZiAnT4P1BH7/DiHEdeeeLm+095aFZNEd2ALmmqBoIVcxZrhhM",
-	"/qVLMOUzZAM5xXM6pVyQhApM+wcBG6R11H0YDQQ4oGIbJauG9m3rAjuD5B+to14vQsfnKId/nJxUOkc9",
-	"mzLtHXsk20Bg+Z3Tk9+T54dd0up1e7125PIelwC285evXGyvIfZtcKnG4N0a2q2L+zgG3FZASyEntAEh",
-	"dh/BdiGYiwbxFW+gQXtY1FCB8dtsm2CLuE+oJhmjCmOZXHAJorLsYaMZGGKxnRm9GrpfhuOcApADm5lJ",
-	"pUnvAfm1d+u56EA3lIEgZbPmqGXmlFYn4YaQyEJoqAcPfi/bVNuOgguMzlHDCzbX4TQq0MngwdhilMwY",
-	"Wg4lr/hV5LaojQngfHp87Gkk9XQIsOQhE6kaCsZSm1babAtMxgy3ctfMAoC9yzqRbR0Ad8KnfDI1ny3E",
-	"m+a5XFjDLOCfqca3TYfHYIIyjVikEY7FjiACZJth3NqGIDuIxWK6xET+EyZYTgH2FNu3SoMWLHK7SX5A",
-	"yvnEUeNPlCCAjX0n0+WtCQ9+ZJ7lV1HPkDRxRXg5/Dy6RJi0AH330P8zmazLWU/1NKzrrwDMGteYIyS4",
-	"qU4x2uTq+TsTnLpbCE4nUowzm+Dp6HCLMb2iy0zS9LWUz2g+Yfjeg20WQBVzLKf2nKWcvl5iis+jXm+b",
-	"l60n3MhaT4Tmevm3Kho+qUPmgMqBiAX1FVDyCkpDO5HxfXIb4uI8k7ozxwDLuzCk0BkDACE4G6AzdTmJ",
-	"7cxevfgd4TM6YZsUsFeZ1K9e/O4uVTAYw4FdhQaT7ogLiuasbZzBMMsvStfPfrPMwQm0rYjgKbpzo4c7",
-	"5Xdwpc5LMLEXA32A2IzmFyy1IrLV0OzMbXDzmEPIxkCMqEhRYaBlmaM5FSyD7NMLUFjwanpsFUWMDKCf",
-	"BkLQGQiZ2L6PxAmifEzr1kt03fU+//4zXG91OfnN1Y3QHV8u9C/0QuO5ufsLXQLut7OpVJH9tTt8uhJS",
-	"BnXE5kRLctgFiKWN/whi2eyEQdVDlAkttUMEMuNtLm85cSUUjToUl9/HpfYG2pXT9dodsoLC7JBXQeAb",
-	"hObUo9OoWLoQLldHC4JnoYgl1Rb4rgg6oc1iWKJwXMnNNhCgfSlQ3JA02crFRNGlQ4Ni8BPUeJOFVjy1",
-	"pX9teCBLBwI1QJkjISMUrd0WoGCt4hjqNOYaI2etaRz7AcTrQBx1H67X6oJF+cXpdeXYdlLsuncyAFsF",
-	"dI031tqw5j6gJkLol40ty1OW/92R3S862C/Rax0GTCgs64jxvQF7CbnAljxmA09BX1Znno5vwT322od1",
-	"2GirkklaRevxUxQLQRWz6C0wlwIkou+4gNU9nf2klOYij2uOAk0VAgag7riTRiMykynLoJ0yf4T3E5SZ",
-	"UO4RlcicqYiw9wXGHg8E2gAxiBXegWJrSvMkQjKO1n7IjRi5eqbQlcwvwEQP1D9aE4EXedYKjXvjuPBZ",
-	"CB0XciBTXzeNtLAaItTaszHBzhqJVfj+LAWLzDpCkS8rhQcux4goOdYLw0PB8oywARc3GrkS9hoiEmxJ",
-	"SSeiG8nep9tFFu3dH2Akr7hIzEne6NI8g0Py6vHTz+XWtKf8kzVre2m+iOI/O8UEtSjnQkO5zzA9A+5R",
-	"SDehNNht2KrsM7fg1nwuoR6AJZGQLaHujDPieGxDXK0Q7+oJxEjzcKbod3AlECNXO94RUrZgjeWgyCNo",
-	"GoiWG4dNlY/iMaDmMdE2Oi5o6X5oHfV6XpCVgrU75FFFCMfyH5kUE5avzgxwtQ/7oPtDtgauyBjyNg/E",
-	"GdRhUyGsAhJrCLlAQqqaKAvWqb4N5NLtC8Q4tp9JGF7r5cBRsfSLgPtFwP0M+JN6qP6dQlCqpWx3lG2j",
-	"a8wnT+qCma8obCihIlrKdokpqNTs7ZN5WNp6IIwUBxJdVZTzBZV99etjlDKDSjQuy7oX2cJy4oy4muA+",
-	"yMHW+94Uy3BeLtsvEm5WrW68RkQr9/6LmPbz3/vySDXDznaUzdaot9Eny2OPBIF6X7kUPCnPUD+sNznh",
-	"RmaDVGyYLMomY0NLJKHa6Y/+9Q5CyUx/TlajXii7p8oHj52kR7N4ICBDp5X8VEkyQ5moRRV59fL8NbEy",
-	"KSK88JLnNpOoNa4C/binSG7U85YXCWVO3tN920tu8w3gr9HqL2Ig3ADbWMaqgFo1kLRgTU1OsycsdRAy",
-	"0+GMpgzhdB4kaBFaiiVSpPu2FT+nRzZvgVvqiFCSyeQC0iEPRMqBNaaEJoCDsUk8jm3OLpZCJRg4feYt",
-	"Wx8VHm0ihOaw/jJFyJX66J8ZKxMUer+G6n4RJ7+Ik5+HrXw6N9kgQa5UgbhlPzoKkRUroQ8uaHC7Qdyv",
-	"jtdJb9/XCkr8AmW3lUoeawhJZeG/SHA//1X7vjmXXKM0twERtqXzextJrpp6dv09I6dBGj3T7ECsSYxn",
-	"daYR1ckUUwQZwSTsqH3ss9MNxIwuvZ9DMF81xdzSqZGNWrVBWUA65JGooKpHNLmwiZZLyc5IbJAQ2m9S",
-	"HBEhjbSTQeLRtk2GOJtD5QGubfKnatatvk9hMRBQLg3qQrkCadDErx9fX0iNnGosO6HA/j8QUPHrr//y",
-	"32ow7TLFbSdc5KGWGcuprToVRyggDoQDAPz0r70u+bUrgEvenJMnrx6R87f73x59TZ6jS+jbbrf7ODTx",
-	"VvfxeBWRb31JZvY5T2GNIhedNRCVhLPwtUPwu2itR2ViJ1haV88N/VbO0GlkS4Xag6s4WDlfEO/gJHGv",
-	"r1fzJRIX8z0QVJvDi+4UQ+xt9hAKyw8VY8PGQVz3ITHHUEnCPodhAOBOUrbYgOvFNu/yFKPSELYbDQS4",
-	"tMBQnEvMKeyQ8VgnCx0/gMWA/Ao5FQqDCOwxhyRZuHBH3YfEArVc9VxEVrjsaGgDDqvkDoS9PkMh9dBb",
-	"vNuRt5aXoSOQ5VcEyoTzHJaNhHEhZRM1DIZ9dkrVcMx13O6Qo16vD+UxwjW32YPD3QxCbUyflaMPaz0M",
-	"zi2kEaQYoLIG2PF9tQzYL0sLaSpF9ZkVkabicltIEj40UxbaXPQvWsoXLeXuRSd0cxPajAYo0/FuKUF5",
-	"aeR68GCQQPjgx/LDR6fjWJJ4R5j7wA+I6WZTl3Kxhs51mSKpRo7ncIEDIeSi3ff1cnx1/5KPaUTYAUGG",
-	"d7G73AcRDkRLSL0Ns0B5yjzsuA2CITAFk80ThPHa4IuNsLAw1a4eVwDhg1ktKEbvgWvTVg1THuGiWBh5",
-	"iRMbcjGE1MiQXlqAgU4VybTO8ZQzMcosZRAF2iFva6V8sP0ZvcK2h3TChlNZ5DZzbSDAcGXbgWpDuIC4",
-	"ExFWeceE9zCwDjnqHrnaARCtmTNIXCnATcEFWci82TfrUB+n4qnEmqK7sbVSjN+7Pg/S+uCqXZIYrXKT",
-	"mUQUksvYfwwOaYTEjBQTel2aGqp3z9Jz5yk03FZsyqRRbv0XLfwXAXepJVE3t9Uey1tVwa9jIbcLRn+k",
-	"SIyOjPWY9zhatYmV6zDGXG4rzCW2RCFeYS/m6kIlmoGIf/cEu96SYxolAjKnw+o/O31+7lN/A7AmuXDD",
-	"S1UjnP2FrI8ffBZHA+ExigiyWa8jlPTwU2DgIVW9I32haaBfMOFftIcv2sM2JP+PBTUyyXID7btVcLit",
-	"cLGVTlAT+DNMYBhmX0Ex1SV3Hy0B8bLOf/Hcdn2HBAC72OR5sPP/kpPv9sFfWRbUGaqelTDAwZ3Aded3",
-	"FydBKGKAndScP5LYbEL+pB52yCupNObPxcQskD3FPIyFisRyIFI+HrMcYtrAWm/Uu/qZd02j5ngV/NLq",
-	"dQ/bxwPBIM1oXk4dkgBFgYnVFXQtYb2+Eaw7PRBB4qNy6OyKJtrm0KmNq0SIIR0ZCDdQYYUTBAoj6JZr",
-	"qCAMaJKcKbRe+1qbcjwQgaEfC0oGOQjv+SKcKkxu7W3paioXMIUsg+wxHfLIGgDKOmmF4O8LXHsujICL",
-	"Sm3rqNfbYDZ97nLW3oUYg43/TIKLnVkDzUKdNaGZM67Udv7Y7zBkj0RjKVC32zTIrh8fXjvnisk/LaWK",
-	"YyRxwKkOfjTH5u8tp8oXUewXGJ4Hl8dTo6j0voUiD5ar3pWZVaUve6ZvQQizVkp00mHSszC1Xby+LghS",
-	"0qak5nOqp6VlC/65G4vbI6LmLOFjngTkLKBxW9jdgoQ15YjKbNWHR98cfXv/66Nvrkla/e5noe2lPPrF",
-	"+PbzX/+Xwu3Gze+3habteK8RJmYhqxHxeFcXaEBa2C6ITpiWMmUZ0yxtr9O1XuFA7tLWAiDeTaoWDrrz",
-	"RW3aeOzMCtql2h7jeGMdyQG4sTqrFcMB7B4RSsZFllWCV0gLSkiX0RYg3bejgchlZmvM0RIi37IJzSkU",
-	"O3yUT6To8ZRMqZpCHasNsj0epzuS7bHxnwnMYGe25pI4oPreF4H1i8C6K8eaQ6i+O0O7k48K1zr4EejA",
-	"xwPLf7Zz+9TEU0tfEiqCyGBDPggHNJv506cQ5rkrslut7hzci9JsYn0s2oa4gVWliZw8xtF7enK9hAvT",
-	"vrGI+wzevlsR8u+DhPz/QIa0h8/wRHf+buVKFiKTycXON/IkYzRXNpoKkJAADK3ETbEyxK0R1/EGuv5y",
-	"nb5cp89/nfDsffptsi6x3YFwzQE9YGW15qAyRX5p30fotE/vjoBqyPgTQVZ8LJgBHFEwoqWmGbqcoaL4",
-	"+7hdryvySmaZz240EJXCWY3l9hTHDHxoPOmX0QdQEqB9PBD1inuEZgu6VEQxTVoApbXFp6GWFdeurLct",
-	"v2eaNWoAQDCmVA1nMmexQ45h/Lr5yhYHIQuWM5egniRyZkvaD8RTiAkwrL06IsWYsuuJZVic90OKhPVd",
-	"szRnAyGK2QjqJtr8J7iUVr4ocevK9gvQDorzAmUaMfWgzdi+HBbQDxQsUjkeAZpM7WNcQXlQzYTrOugO",
-	"G4F61Cnhug+xKeCJGQgbKOvSREEMSgdt93FEYvt9h6Zp3CexNeojsh2BPB753nHBJ9F6AKp9Mvw1bkNk",
-	"bSNQ0r/gfwoHAYHCOiwzUdZ/MEM3p3xos0b5h0N8phRY5r/RbHEGDT2BzV1lNjepK3dsDYjlUMwNcI+O",
-	"GUvXmRbhDu1eeO5Wa+8ddsPie4fda6vvvbvTcq9mc56yZjB+WPfub6Mi0N+iiwJZizm2Zp2rUUaVJCv4",
-	"zc0wInmxNeivjJ1bzSEtc+soN+SuFaTHK2vyWEqH2OwxhG4IB3+ZM6BQ6DqulQC656tDV9II1kOV+oSS",
-	"XvcQ8yOoih4ZEHeIBCtcVgPkJqiSXtKMp2RUaBfQhiNLqLA5EayfXuYYJmY4J8NyIREUTfFbC+kHswis",
-	"uWNDv7HISRtBgzzLLHQwcqY5K5qHGbuq+WP7JKeLgUippmW1Ij3N5UIQuqDLDjkVOH4u5oUmraOrqzb2",
-	"4lEBQQmdEVtKm53GVuAGZ3w/xJxDNghAT9j6buYjxh66fSqLCR07775ZEp+429U8yuiIZVAbzSgoErKF",
-	"t1aKyygykYQLLcMwSTwseiFtoRiSSsBlqikkPRyISoTksbskPK1AD+Ysd6OCVfjVr35FTlM2m0vNRLIc",
-	"iHNmRJvgq/0/sCWka5vRCzNCDenKFR0zrI6MxcPN1XCBEAOBKTJAElC21PwMhn/B5siSfD2c3hEB/D5G",
-	"61kr6D0AUogJy8EqC3KaS/rTt9k8/uH85QtbjM4vvhEC5zQv82aKRPqgc9JSkiymXDOi5jTBWL0ZM8fe",
-	"yk52RWdUa5a3j7GjgTg5/77SEfAxUjJpn98opwsykumSjJaaGa1yn5zTGSMXbBm5ys9+UpHNEOrAl4Yy",
-	"gnMDz95XX7mMkwNB/IX66iuzFghoKefV6x7WKkzDKEBIdQiE2IitxAbThtt7xuYZXUK3ecHiYyKkTVgC",
-	"K1qie6vTcaghHc6pT456vcqDQTn66nQ9AeCCjDM+meq+LRYPXUOUiRmw2QMbBGyFTdeC5jMGyr0rDZ7D",
-	"TDAeVuYESnkddR9CRSWcd7WAPTeaSllsaMwFV1MQaTmg+fYhVNZ2Zs6yJU6GpJgOHhjK4l+fygyDZS7Y",
-	"0l8tc3RasWZX+iBRl3F7IAxbDcDcirCrucy1ebJD3sIoT1Bq2X+9nLM+8S+X5coGAiEmZMxZliob3et0",
-	"nZXjGSMdMyJ22XEcAdwpqLbecgwTKU3sUtLGpCWBCdKsfWzTo8d1cSq2sbhBt0A2R8wJoq2jbrftDaZw",
-	"QLkib14/3f+WtAx9xNJU5urs43WEvKxcET4R5gC2MT7l6PDb7kC07NRndGn6eF9IXzEvHuzFx+TZU7NF",
-	"J2fPnpKMCwbFqtod8owLCPY2Y4UDORDJlOY0gchhReJfxS4RO24PuHoMhbvg8zlLj8koo+IC2lThD9Z+",
-	"i4ccK61Dv1Z/xA3rkBOZFTOhPGgUS9qJJVKgvlmeDySBh8gH4naEfAiKlcmF+WhFIPNhID7s7+9X/m9a",
-	"iS+4SGPygSyZIh9AR4EWYvgA78cEn/TBBO5hx9e4BzKs+RJeB4ZUvoysrvIq6tT4dDWS37/lYvcrP0fk",
-	"r//yv5NurQVHDcuXIZ6rjJBwdc7W/wDt4CIMOSyJkGUvJfOszdRlKVh5wf1AxjSBNM6Dotu9z0iXtPAR",
-	"FMUO26YhQ1peBuXsDFPO5aJDzpwk4FwD1mAJBdgqFB7qpZUxIOa+2l0IJU6EKcJFdBSSUV1tpLodbQes",
-	"ATZS6yFYr5YVYZGplN3UeghWrN0hZ3JhOS1XKApQVZbWMy1hBIJZH4gJwnsQ9gvcz14Kl7IZbgGICPgg",
-	"vP/CyrOFYiTugHkoZQmf0QyLUUaECuLoGhBhAVQqPuw8YPv34zampSCGrhWKilS5SnYyV8ckfkFfGIJ6",
-	"KsZxmd+QX7DQp4N1mHKGzdgVgRzakJWDCxBiLKdJWJYhm/EsxRDZJVbuVGaS9xQxd9pTVjhZ+LpwOdXN",
-	"/qWFXdLULSGSGkpmHLMo+DXE3yMj5hBYRyuHl+wdFQMj+1iSa+MpHU2zeDFD7LCWIPi+4KGj7sOvURbC",
-	"fcPcCZgTDTaB5SQ+AFJ6APclEXht7CccHH4V4/Fofh6SDuCZgTV2ucsVSom4jq2//st/wxIgXsyGOBhH",
-	"WJFsydx05IJjzCsPul0rcuPnsIpI2+UQN4weeBqiim25SdNUr9uNzBugscBFxsqSKCahzgEKi7VfMas9",
-	"+halyJa2VJkU+0hNEPB57As40iVIQiOJga+gMiEmDmUq0K/vKWg0ZUYozgNotmnCFhAF6y1EbdkcyIT6",
-	"Je90OrHbN7QJXsEq9AcijuOB+JWVZbDjgOrOp1JLkAr2D0nLstZVFtoeCHO8I6c1oUJZ5QeO9EeeJkSO",
-	"wkB2edjKSHDzPIueHUbdzoOo2+kedntRtPGJ7sNvm5/oRYedrnmi133Q/MT9qIdPHB0ewhN4etzvEbz8",
-	"oBu93e92j3prHji8fx8fuB/17IKuwYycFbtnzwgk/j+w5d6quc6cDDhpXgwElmFTL1pNGMJc1pjzPIbs",
-	"NiCSm0cTHK2SQ68bV/nwnY/NB6uDWYWWEf1lZPXaQOpSEt89onrDEL3kbkYnDfOppSpYNyAn/W+9aC/d",
-	"Cx/vLNV4EWCZoj2nGFUbWF0I4Pzmy5HRmA2JNHOecfGMiYmehgblsD7C50NKnRXXZXsB04ZN8uKSRRi6",
-	"ibCzlpE3La3OrTY/ECs2nAi9UfYlyxp8WQu7YdZFEYQwNNkKVhc6BuMBimR6ypXTe2xvPkpGjsHd5IOF",
-	"ULuuGi+MAr1N1MNIyoxRAYdhu0ALALUXrnRtXoi/y8K1XzBrv8DielJpcz3tRR4bIctf5tCDUWwKcQ2T",
-	"5DQ4L+Awb+ftX+/AcPTGOZ6pMwD2YcRO6LfJoGsl1NHs6v0z+F3FP52zhHHIM1MlaGsiNm4i65wV4q4T",
-	"fpphrafVXzA0v4CwXOcPwMN7q1fstoE1FkpT+jF8JkUVVW+PxV10yJnLsJizgfBVI42qFDkmzLwVS3kv",
-	"22q0PQZPcTEQLqdgGh9bFInzCaKTDdENHfKoET2Bg3euQswmDxqlHYSLKEPQUDCM0pHpEzjJDHOPcjR6",
-	"TVkG2PoSTeHt62chymggHrPc0JZ61lFHaf54EoWeiCKr5PFSA5GyhBuSFZFavhKzC7GFNA1tnaD+QBx2",
-	"gl4WlSGuTcjVJ7GbVHw8EL2wiUQWWUoqTtba4/frPfr8ktxllq+9cRS+YT0YtnZHCilFw+xepkVreYJs",
-	"YLW2HnTCOLVm3I1PGFvJYmYNFfY0YE7VwPeA4wp7i+oZQuH1SpctX8p1NQFoztApY47OiCYXYNcEI1eQ",
-	"V3Qgvg4Xp5LarE9iqCClQH0yk/8mfDbImGadS9QelQj9Sj5pGk6t3Ye+7Rky9KqCrPPQOTjI0LoDZckx",
-	"8Xl8LC2J1zPLM4+J+CXyTDe6tQXo4Ocv7PMXkIO+msgXEZ+FuFWsjS1nhJf404E3lhiU9MfXbnTmGFuz",
-	"o0VrybAd2VClcU+1OwQgj1yR95irhluaJhJW56NgKEfCIMc2ybBzlpUWoVbJ3eVCYBFnmYf5Njy3KGGG",
-	"1sJs9WhfeSlA32p/c+7VYbcDsRYcRDZjg8yKVkk0VyuChVlTt9wOcIgcFmo8Wbik9/c70R/SbgOrBVcs",
-	"T6ZkXepy6wDBFGi215ZiLCCJdaEsbneIOwt2w0sIMSAatGLZGFiEphcMhETPQUq+X4hrYUK2YrjNAW22",
-	"BVwkFj1k+oJy3T6ltnWt2aNx7B1WhKcVTFCI0gFvARgtjJxneKJNGuqYn+F2FmA8pSps1LJyNzXkxLiU",
-	"OLv19mW7gJ/ERu6gUAyO6mcKaLyef3l5xMd55aWY7mA0X9KrfTE33b32m6b+NGoZGJ7eu7xrespmu3Dz",
-	"DXqx7ejgR++T+3jLmvG4BCUguYwITXKplJkX3jeXXcpmn4pApV1RnCEx5ibm4buqlqwGrZenZcEEHBdm",
-	"t3QMAPP+l2CFNVI6UrG1gvoqWXl2+vy8MvUVxuaAD86XU41M8yO6nXwmd1oEsbI2X9SEXzqdWbmltHZa",
-	"b01hKHMx4IV1dUlpdhsVq79bgvhmKwzCPIIqgYF3zVefhoibSo1E8E0PRFk7VWm6VBHAGO1dhUKqmOun",
-	"HL9NRF4vYd1APN7ad8qCddsEpn7CvX/zxkhzdyXOvfVL8DOln7u28F9Z/PZLCcAv8ttnpKvuahhtLrjs",
-	"t1MKEJNP7BxVf6pUAWX9cypSObN1UFs+kuOw9y0Zca3apVgy4ZdMYHCIcuSRJTnTnuaBWcBhA0S2PPaA",
-	"NYDmQdQOIFkMebYRIAMBmXWgrgV4JjI5MXrweo32tRnqHSXZgbZ/JpUU+r4GOwLbFJWWI7sBagpgUfHL",
-	"r4Dwhd7cPb2Bu00oHpaA0FhSsWW+AXzaoxAwWdvW9OWMXcoLC36Flo4tFLUEDncP26Vvz+YhtqnrId/u",
-	"QAQoaGcVy6Hd1NIrVNkaM+jAcB2p+GxyVYU0HK2uFi7Ll1SJv4iSV2YrPv2a5Eyk6i7LUymbsXVNSapq",
-	"no3A2X1Js4INhByT2J//oLJIrDI5Z7FF4Y6oYmGIE5T2BF8FKn/nj6Gl0uEeuzfi0ndaDheVIpHKRdlh",
-	"r9s+hsBWncvMofoVh0pOP/1rj5w/Jq0FzQUXEwxa++lf78OX6Opog63EKGwDcT5liynNNUngv63T85fk",
-	"m2+/6e737HTeMqUnAGUCi//hfk+VjUfkcP++igait99TETnbP1IROdo/RNvTYfeKtNAR3wZTLzMLSRGR",
-	"US6sqoIkFIIPAJQZ1uc6rtWMROtxxr3FZyBi30GfjGmmsLLWJZcZelAw4zj4iVxRyiAH+0BwcSkz8MRA",
-	"xOEYSnJhXMdCrmwOlMNCd4Lf9P5AxLgf4BkSRZbZQmPYJVflInTIIwyHIIcQCVHOaiDMwT4msc4LkWCi",
-	"DZdLRYQnAvz4kFilJWgO8T7arYVhCHAm4VoRy9CjQD4EUGzCotVaqnIhBuKPJwQYeVrkTCHKrVJFNSI5",
-	"mxSZeaepoGqzlQ9Gs4aPbEKo307C4c9RRqypDz/brWHjsE6v/GsNYPYnABY29CP0R0aEC3CWXq6NSDAH",
-	"4xbA9M/QN1vr3bpq1/eu5S30/Xu5IDMqlvU7GdVSG1UJaISx+jog0utG6X5vzsPSC9Ow9CpZWHqfOQsL",
-	"3qd1jjeWc8DKaeVnHPkoMJGWpPFLdpY7yP6X87F2EodNYuIuNJSpBjiAFTNqzNxsTpXzBmKVRUffTsk3",
-	"lLoO5pnUHXU5uSPxC3qpYLaw37gW41CyhYighdEiBezygJTSD2UHm5cA/VnIyiAujhE87eYLlIkwPZkV",
-	"hXCdPbjStQaiB94KBu7BjDlDNUC4IVFJZnj3WYMwYsQVGPUm5vcqk/r8+9994YFfeOAXHhjwQD6jE3ag",
-	"Lie/uZplVQbYEIbWUL/UkIYvbOz2k4yFpBcRj0C7I4JU7Ja5kumbJUXO9RKo4ojRnOWPCj3d6//wzpwj",
-	"22H9PpwG6SwKAUplUIY/QM+1SmVctTtB8ZBCqIYI4KeY1Ctsy100BDMFOHHDRVXQpF2T1UZPxSXLFSQn",
-	"tBX8zHidla4S2x22Fxb8W230j49c/WkwagRO02qFFLZoerlEc1bzyEUesxVAKD3fTMoUdJVeLFJhpZvv",
-	"GxGNUQnxLNNG1QsS+9bfJw0NY1UxKI1lq3R40YLnpCxgRuYy4wln4bK6sh4Nrb46tUnJOyH5BrNWQ25H",
-	"8D/5BZNV0BvLWKJzKXgSVFAINxe9Vw1chl8ywZRPlQd/zpjOeeLa54qkMvGRy5VgZTwt7z7+fwEAAP//",
+	"7L1fcxtJtif2VdKcnRDQUwRBiOpukXEjVk1JM7wjtTSk1H3Xgx5UoioB5GUhE6rMIohpybGO+7L7ui+O",
+	"8Ouu7ed7IxwTDr+13/d+Bs8nceQ5mVlZhQJYoEh1z7UmYloEUJX/8/z9nXN+3EvkfCEFE1rtHf+4N2M0",
+	"ZTn8ec50vnoy0Sw3n1KmkpwvNJdi73jvgiVSpIpoSZaUazJmE5kzkptXuJj29qK9nL0reM7SvWOdFyza",
+	"U8mMzalpas4FnxfzveN+tKdXC7Z3vMeFZlOW73348CHaW9Cczpm2wzgt8it29nR9DG9mjCTmxweK8NR0",
+	"yc3XC6pne9GeoHNoON06lH+Xs8ne8d6vDspVOMBf1cHbt2dP98x4zlI2X0jNRLL6PVutD+QJSTLOhN5P",
+	"ZlIxQS7ZinQoMe8TrgglUylTkswkT1iX6BnVZE4vmfnFLBhn6VCYITKliaITdkIUY0TPGJELllPTywNF",
+	"gj57Q+Fmi/tVzjcY674ZbGXd6fULJqZ6tnd8OPg6MvvgP5tV15rlps0//fHJ/v9I9//c33/cGx3v//Dj",
+	"YXQ4+PrDv9vz26V0zsUUF0conRdzJnTzDnH/O+EpE5pPOMsjQhVZSKVZSpZczwjXiuSFUJt2sezktrt5",
+	"5juHYZ8XYtOZygtxvyfqg3lfLaRQDE74NzQ9x+03nxIptF1NulhkPIEDcLDI5Thj89/8ozID/bFlj6/x",
+	"Ley0OtWXNJvIfM5SolZC0+uILHMppsRsMZE5oeSKZgUjstCKp3gesdljMnfvDsXfX7z6NiKU4JEgyxnL",
+	"GaFEFPMxy8mYZVJMVUSoIIW4FHIpyISzLDWv2BNHZD4UORVTRq64zKhm8Ou7guUr4mkB3ptUMkWE1MQs",
+	"zcrcgw/R3qkUk4wnn3T14KAwJYs8MfRHaaoZmch8zA1VhB/xQncoEimSsyvOliwlNMsZTVcRoUOBP5kr",
+	"IAtNKJlwHQFZwJfhbsDC0zkz98fdbaAxSvMsI1wMzfSnM9216/EchpEy8akXRMtLJkhGk0tF2JXZPpXI",
+	"BSMZh5vOBYmv993V2YffVNzbAypiTgLNnuW5zD/lsF3HhJmee8RMYyzTFVF0pYgU2YoMgTuVDw33CBVp",
+	"ZZMNsfgQ7X0r9XNZiPRTr7uhTKk/juUlYddcaRjZa7rKJE3fSPmC5lP2qQcIK8quE8bs7VAsv2L5A0US",
+	"KSZ8WuQsJRmfcxztBcuveMLeCnpFeUbH2ScfcEo1HVPFSEKFWcmx2WuazFhKhFxGfg48YYbFq1mhtSF/",
+	"qVyKCAhaZwI0dJlzDUyfK2CFVCR29sq0mNozNmYJLRQDPuj75mooDGGlIh2vkOfXxbN9L581TdY+fRBI",
+	"cjDfN1K+pGJlmY76WcjEA+VvT25oJ1dEXrEcVsCehLua7ltBCz2TOf8z+6RX8yVXiotpVLLLyDNBmRuG",
+	"IC9ZSsaM5oa/mVWpTfr777/ff1LomRFdEqrZusASfwNvx8gqqCAx0KiYUK1zPi40I53z56fky68e9bvb",
+	"xfK6bIdLt8hlwpQyl/CZ0FyvPuUKfs+ybN9KKVwsCo1SwDhn9BLE5yJjRE7C63hiV0DFQBYVMdd2KORk",
+	"wkRqriiIHyUFLzJm2eZboYrFQuaapS9ZyukbWI9PLVLAlXigyCn2um9GYS6HoUJS1NQCQpOELbTqgUxr",
+	"+zBDeALfG2JzZpYNxp6m3LxDs9e5aUBzI31OaKZYfSTl20TPcqZmMkvVCawkjCFjE23kQqJBjTFDYmLK",
+	"BQM1ZUKLTJOOmqGwl2XI+qWAB+dMz2QKR3ERjOPHvTFNLkcJzZJRJpcjLTOWmxGMFijYseskKxS/Yi+d",
+	"9ojn15wOqveO91JZGEYRGTUHHzjs96MmZRNlU7PlZZ9zLkYLqtRoktMEl+HHrW23bvnTzGQm51IlLKVK",
+	"84Tr1Yhmi9mNp/EJPPQhQgnHbPqO7xlZbyQnownf9c05FSnVMm/Qp09nzEiQS6NNkwnlWZHjv3jUrlie",
+	"8kSf4FXQM5YrQo3SkV5xJfMV6G2azdVNY4F+vjVaHYzn+gxfOizXl+Y5NTp0Ifi7gtnfzW7ZCbBs51lf",
+	"j3J1v0fBHOWMXbFMWaUfH30UvjdYt7zgi/lIvStojozyI86/LHTGWT5KpLxUo/TeJuv6UboABd+y+Hvp",
+	"Ky+E2nG/r1jOJ5ZjrFOC6rF//+un743WHbyCwh/NU9I5O/3u4PT0uy6Z0xUxtJXQKTUSpZGYhkLIOTca",
+	"CujsPfLUUuFBPyLUSELk7QV59voJufh+/+ujL8lLoMLk636//3QoEprxseUoYfd4xTI6ljlc1QfKkm+i",
+	"mFYgqsmltUbdw4p/8N/I8T+yRJsFLVnTa5nxZLUjZ3sGWqlnaoYvTWSesMjxLVVyrJ1Z1PpUP57h7MJY",
+	"Wry9mU20eLmBSbR4q5FFtHivwiB2p+cVCt5ArluNoEKs27xRIb23orBtKOkOb9XoYos3q1SuxQu70Dgj",
+	"4yKdyzK5ZKm5fc0UT5FOGhCxzeQLRMkbh/kh1Hz+GG5U7Wg0HdiN92bzdYy2EovthKB+Tqoncf0eVvas",
+	"eevXj1F4wbbu4Q9NVNgdj7ojRPGpgIaM7gAL3Lw7ngf0e49CHtDr9/uHDWfsiaDZCvXfrdS+Sq/RYt/e",
+	"LwCCnr7Rim+eqR8o6Mq+37hiRcr1syunR7afQ8kcaqqxUYSXVJFUChYR1pv2SJwXopfkjGqWxhGJwbrc",
+	"m3Bd+UwXi1xehd/kzAyTpXFv3cUTmRHIBhegIbRO90bDL+jm1DTU3E6NilLN9jWfs6ZnU6Ypz5rpx4Lm",
+	"midFRnMVES6SrAC9njoLew6mJaqk6DV6rMJto+Y+4QSjPX/9bO8b9/GFnO64i+zKOVhbcbLgtKyxstoM",
+	"bMtNYz2lhRme2nB40ICtDIXlCgwiaGY4tlYFuMNOyAzstJYsD0WSc81yTskkl3OyKMYZVzOWkmnBU/Ny",
+	"g/hIkyRnKddAaKKhyNm0yMyP0L8VLi9evQbLAlnkLGEpg6Zwc8l4Ba4hmpkrm5IFy5UUQ+H9zxmjiln/",
+	"qFvptdM158LpeuuCAkgRO26v2cJCI4utrvRz8zhZzhhaPxLTOElkkaXE2pXdu7BagsSGF7A0NpsBfcHK",
+	"xHgkY3RLLGer4GiPpcwYFdVrszZnsKk2X6hAHIajYEZkGA/YFE+IKLKsPoMZNUdFgKNwSdE65SbSTPFN",
+	"K2jJR71gu7xXP67MqPmB/cg60MGsjiNKWeK8lN5AAMaBJQe7OpzxwEKwvnhtuEVFxMSdClY7aAxdMY1T",
+	"yZm3POKt06XVLJFzBtepkYIqc2+MBLJhHwFA4J4xWzNnVMGdBbUw3MqP3rBm/leO0J04v0xReUuqsodd",
+	"qq1kt1z3JvQFHADLigLatQAN8ZjEpbRneB6Ke3E0FHEg6plf6lKe+c4LaoZOcSnMd140g0ZyZn65YiMn",
+	"uo7QBB+R2Etq8BZTPC1oNjLSmvnCimQKWplLIbUUPDG/pDmf6LhHgm9Jx6+ZIYL2wHSJ3QQwjTl/spaG",
+	"sJhzk+hsRXwj6GExq7SU+aVhmuB277kOwePkdolQTbiYMqWP4RXBlh5uozK5KHkDXksq4DRfPPUGefBZ",
+	"l/AP8ytFOe6BIoM+mUuliSHxQg+Fk0qwDxWVvu/vmdJTmqcExRS4OIp0FGNDEf/22RtycHV4oHMmUhV3",
+	"e+SsctVJITKmVEg6Mq7AeEGoGgq/qJG9i+Zlb9+GqzIxMoURbgQ57JPaOIcCnKyR6wcbKLeqA0Qdv80Z",
+	"ehdIjWB2rQVFGBG4UTepaiUN+kioUdiDatSCQIXYcEpDdQKeCs5oqTXASNwpMjfVHJfgoloSFe1d75tZ",
+	"7F/RHJwvZjpwdV9y8cJNCb9w84JPL2hy+WryHKYGX/xufX7w/Tc0uTytzBG+Pr/w88TPdrIXdq7P7FTh",
+	"x7NgvvZpnPQ5zhm+e1VOHMcbzB6+eIpLgPATc4TRftZEn5xtLgkfNKIrEix/JYzycIO6dNgP/neDufLU",
+	"iGwgPTWwi6XcVzw1x9g/hfqaub1wIq5opiLS7z0y5KTfe/z48Y2q3OPHjyvK3KPmUelcZi8Mc1A7Wu8u",
+	"Zmw5ozlIo6YRdBQr0jm7eEW++vqr/v6g65ich9SMqWIZF6zXwNOaVK3RjE9nLU0f9o1MLlu+APvPWj68",
+	"pLngYrrLgNwrbUdU4+J2eNV2agOpzDqqLFoj58atOi+yRt5dEncjDnX8R6YJzXoROc246JHTGZv3yOAr",
+	"0jl8/PVhlxw9ftg9JvHh/kDFQ5BDEas2ZispUvLTPw8MH+rYcXdPzKMPVQzOS//MQ3Lx9ITEA9MI0Utp",
+	"WJ9QLCkM5XCPeUYGLcJ5OyHx+f4RvkOCVyLT/FDQsbxi5DfwvPMygyAKYLgl+et/+i8D7Plo/1DFZCKL",
+	"nKz3PBS+68Ow68P+dUw0E5VXrG8VngawnmXBhitXmYtZsr1ozyzHXrQ3wE9mOnvRnhmP+a1/3ZK0m009",
+	"xBbMXw/dXwP/3fmR++vo0D9n2jcno8hVk2Hh1YK+Kxi5ZCvFtGGzSuakY67xl0dFXl7thaEcYgr2vwDa",
+	"+uhw0AraOtr/4Tf/rknKBsDxrh5zglYWlAp65HunLuWMmkGqqs5nH6bmkGdG+kskm0x4wo2yYQTAKpNW",
+	"MSqBibyiOTeybQweTzZf6FWEkh/eaIVGGMFM66YbeM6QvYjEVi8C1TKeGHUysu2CwxWUy6EwyiUcmTpx",
+	"RDIxorpRq7HTLQTog+7pKsvYZvGhpYVv7bckMGRs1c7cc+YdmNNuvoMmv0G4M+sTPxNkLlOW7bN3Bdqv",
+	"ZZ6y/JgYjkNz8sdxPyLjwx8i+8VI5nzKBfkjfPeuoKmRBhL3XETGgx8q/ut2bgprzXjYNPzNQsBpA+s3",
+	"mzhGST01n51i6kWCVtZ20687qk39ut/InOqcX7uOw7WOiPrpXzr/8P/+n//x+3/o/vV//r9/+r8iksul",
+	"MmJT8Byud2XJ7mztti8smlm3XwcL76XK33iREqXlTjcjnaz34ERWkrJpzpgyKzjJGUvlPCLC8BiyCEwI",
+	"gQsKgTqjK5arRnEVoioCfzA+j2TFq4ZmbgBVRrMzPH9w2Ov3+s0mZOscxv62XcNn/sEP0d4ko1PVZFJL",
+	"tCJ0DAAkHIgFh6MJSEhnAWqNBHnO9fOMTpvu/4zRK86URpXspoZAybmY0RwMRDxtFxEQhQEOjcY771Os",
+	"LsVTrjQXicb7q5xKMUE9YlucjTXP3LgyVk43twG052Z7Kvw0ytkV33yorPbtHmq+H4a3V4Z+2AhUMST3",
+	"ppG/hIc+RHui6fpYrlwuGOnAITUqkRTMKeiFAP38xsVcSN7IHxBv4FEcVhqI3HRlTlyvEZnmsliwlIxX",
+	"lhxzgXxU8ZKztAc3maV9bYbVdKorTug65pJPZyDKhFTWcALNcqPIwmA6Beqy1oVb4W7dW1qAwRh107zO",
+	"4aEPgalCpVvoo1/6lF1x62HurA6uu5ETmv/7f12SvyOCLGHeRCU0Y7edAPgobpwBPmWfN3dhJIHE0yx7",
+	"Ndk7/mMbkvFDXQJ9nTMFOyUIFcQTXH/fouDCcfQc5sweQzQ4o+9/1J5o1YTUhihBt/j4wAY2D37EtbP9",
+	"scxbaaqLdrfkAh8N3L/Vabw9ffuSJLJUq0qTTcWk4w04awTSyTujVpTrO/u0p2CWnd34nn3sQ7SHh3mU",
+	"UJFyI1xsJE3+iQeKqETmzBpeY1poiWoHIsvJhF8bAg0Ng78145eMdEAHMacO7aFmiQJxYMPL3dZkDKnR",
+	"qRtlEy1zc5XiiolmG9zv5NJ2jlBRuOSpFV+EOWkZV0aukUQVc/OPcCGtcUBnmoUbP6v2d/h7/8r6RX7j",
+	"4uwYKcyYOmBAEIzY6FKwSdvtwVsMkHFgU+FoRmACRwp/p6OyfSczKRVTQP71jKlS140IzZQsXYaW8+MZ",
+	"oAKMISeEjoFeWW9UeRCtpjxmeB7T2qz8dO98XsFQqbpExgad/5nlcjSjIs3sJq8fLvNIlRgoDPGwYZ5k",
+	"yXJGLtlCW2d5LtMiMdeIiwkXXDN3Pk9Qq3frIhihuVTsZigDxqUiAffS2rpsFlWDaZ3abWmfk63CU928",
+	"+k00xonsTXeyvow1zXqdm1R0yCq7B52o6t4wHXinSaD0etHMWwS85OsEjpK+eq4RVcwdFWUvsEasKVON",
+	"9k8IXxfPpXUH7wL92eCvn0v0p8EhBT2ovTI5poo3AkJW1pmOAoIKkLFckKXMU9VI/G5lmnEGtps5czGf",
+	"03yFKuSC50xt1re50YLoFVKkhBkxurzRDxSxfgpCp6zmI5CCbVzADTJfoJpRpUchfK49XfoufKuZNGUU",
+	"nPoVhCTVhrQ49kR1XPXrN3k61uz8sAPuNEQIgwpWuGlawV5vPOcvuNoV33brA7SDba92lOoChGDXepRs",
+	"sEajldpJfuZRsiiPkNUhzGrB172bj0zTVpg9CEfRZq1Rt9vNTP1KsDVltEzAkHI6FVJpnqgTQoOPAAzz",
+	"R4zrWoQx6QiJ5iCZG1aeS6lBLBjT5HI/cEnbB9Ab2odHnFsaVYRtYWEFZAZotGIGIriZFPSLfNbrPLfU",
+	"6JK6b7eV6RMQthyDfZtfurFjZxZoRheh3nbLpr0hq9HMlNPpbcfsIQawl80A8MN+/6e/dGqbCvbKylJ3",
+	"Dyofb62Po8xw6/mg9NZy3wO89SjsuTnhQLYi7gWFwfvwwi1nivLWJmNO3dQB6s8J6eN9dkftLmBgeLbq",
+	"9yZYSj9Uf4iDbdqwhsHBXLtd0RqBaDyHwYXaSFAvvMWgbksC5Cmk+OiRJyUQCvxoCwwrHqHtJz7xOGQA",
+	"cBpK1wvcr9WnDee1cCIYNqKw2+JqyjG/xlbPXaPBT0/K9oNvz31XfvKWPe4KTq84Be/A01fxqrRrb0J5",
+	"xtJR6fBbx6mXpicMLUV3AUd/7IIqFaLrZO7RY1U7xVrPdUHizuz9u9na79JYfkN00s00c1cL4u2NdOtW",
+	"tluayaxW39KE8OnU7lC/bVBRq+d+i8raRPGe8qxotpW5X8gE4iIg0xI3iiaEkXJhlV3S8XDGv7PkEDE4",
+	"/8//QlLbRPeEHCKPQWNP79Zxoi3gbs9CH+MOMvFNhvNeAxTCBsR8VIjLdpeRE84RQ2JdZpaHqQpV2oFc",
+	"b5b8coaJLVhT3OIGHl++03TA1jxOVEzZCONyIDbrJsW6fLThp4rfpFUSv3AG4fuBgcj2WBtrEB/UfJX8",
+	"wWunkW3YkvYxapW9Wtfv3MmxHA86iMjh/pgqTMSx5lM8scm6mt6sX9/Kpdzup208NlsXMMiCt8MSlhep",
+	"lTWgtl0VP9IjO6fN0UH1Y9zO0vOGXesGCw9a3Rii8G1gf87FJaGajKWeESZSdeIg/mlpUc/kkilE1M/4",
+	"dGb+tggAmjP7qpfqK3fpbsbr3OcAQis7qu14/WI17b1DXjRAQw3/sTAPWgd5qBDlQeIUbArCgjRGyETj",
+	"Y4SG4jmGHDZkLiH6hgoyo9mkDF/UNHMOYBtYUMV9xN0TEk/YcuQvnxpNZD5Sg/iYxIcH6k8D9MaAywad",
+	"XkOBPcOwZ1TZQAK/eDCMiokSAlXKHuIqdLNxkkYOaBpWSyXCLv9T2zTAV753Ddsfn7PluW/+ucwvBqA2",
+	"/I7RTM92vKulwOdmJS/xgKSrlkPGfl/9fs8N4Rxfrp8+21XToQvoaRNc3wa2UhFEr0TO6RvZ7YocZi4n",
+	"is4XiBkIYKhfHrVCof5Qz7Xaj758+KERl1pmWn2dM3Pwb00xAw2sPdu5wRuB2XqsXmx9B0YFNhfihAi5",
+	"rHOSdlJSFb+4VUsonzSaBexJe65QLukFvFlPCXQDY6iHFXvx3o2j8RhaTOWOAmsA23SozBJZERrNEIUc",
+	"j2Uh0jCiNCJxJpcWU2z4R+xRwg32V3y72Q65OTKhvRWyTQqRTdEMOxqnIGDBBjE4KdbNr2mDXlDN8Di0",
+	"y6J2G8Q0HhDgHS5aE+OmzY2A6Dh+5Vj/rpfnVvc8DTTDbW95DbKV4aMuwgbpj7djpdyDjXp3ec/KFhs3",
+	"soRl7nbX3sxC+cEpZBnNpxBra1psEiLWr9FtHAnKDbg6pv/+X5cVER3THaBMAQGe9gGaZQ5n6H6/TaqU",
+	"uikXR9W4yreJ6XrKNEvQrylS8q6gcEysqxM99RFivutIKwUZZReaxEnONU9oNgILREw61CMvutuCnmtb",
+	"5FpJtgf0nV28IoeHXx893B8Q947Lle28hLoe7Hc9Sm7rgqpM7jbDcWsRkdWtR7EpIcfv5NL0sUKAi1tc",
+	"cPQtZyuz4r0N+T2YjSJrzksQzsoqmQRfMsPE+ZlVvW22gUw2uBLPTn9H/jAgfnB4/iLysPfwp7/86z8d",
+	"XNy6s3cbO2s68RE57H9Uh4pP57RZXPMn41//Ce6VOxx4paqwrBjaGQFKwIgPLWM/grfaq5wX5qVv4J1m",
+	"KMS//pPFwwlmiByi0Lp1HFkQpAARLJtwiZ3ljCczbNHeEQQMXzzt9hokB8NtzDau3cdoE91YP+RbMxy8",
+	"kFPeGD2MKU4eKJKZJ4BsBYqE0yKcCrFVg3jp3Qo7iTEuocKNWWvquflKEWSH1DeWpX+4KZapjSf+5hgd",
+	"CMu35lUjg9lXdlBQbB/jVesUSfaVau8byGTQ3JqhuIYTNMOf8ivW3NScXo/gKozolI1msmgCbH/rWaW9",
+	"Nam0MI8Fz2+LodgxWsMm+Vi3l1vXKY5sxMVo4jB164pJe/fYbVxAISJSLlrBl/zbr+zzGxKoBA6jcGtu",
+	"wmW6UdSwj/72ReE13ryWzcekjn8sT3wTIUMicwskGNpV2lMKS81uSpDlmt081lsaUW5BF1GN/EiyWDFL",
+	"3GCurpLMdpw4NKT8sC6uYzxov/f4Ua+BRN1sVW5JioxgmUkxtX7H0GnhKqooTVclUPWECIni0x24HL/+",
+	"6uujG/Ms34qutVeStxC85vRYFKAMRkm1aYAgH9+SQnElxKTM6YqMWRgK5Ex1PtsmHPZuc4qsn4lY2mvT",
+	"TDGbCKO/Xo2X3u1brZICxrDFZEX+joz75DdkfPjTX65PSFwJbrO/2598BHc8FNX3zL+Dn/5y/dO/YHqS",
+	"r4++/HJ/UEv1gy0DJD3oYi/a8+22NIrDnF641oJPr1yL8N0fymY/RHuvoIxAE+j1+5kkufVOlDbwEzCJ",
+	"+zPqKpmtMNwDEsjF/z6u2cHbVhqrGsL/Pcixh4OvmgXZ1yAT74o0vgW2KOVQ+WKD+dP9ehu4klmD+UJv",
+	"SBQ8KbJstFEUymRyuWlMmdMj1r3msm4QvwHQtKYE4Ukqx+baXJ+UH2OwhDdiUnBXbyE5LJhcYHqZdrZ+",
+	"PD03zde2unmkt5MbKlsbXJSBZebBRWnYeLu5W0O24SGbn3Ap87Te0aMvqx31ozaHxdEsoK1K77lwV6g+",
+	"+I7uWyQjACVSwziVRuryQ7M2YoWWo20STFPlhR1OpV+Axj38SCfa36Znaps/KlyREvl8O7/i3QQKbctg",
+	"hu6uagKTQm2CMa/bBkAAbQ9VxOdvBVjEV3dHJ2Jy3tuclHN4s8mGsgE82RSUMqq5WCxSsbIQ9cnV9E83",
+	"gxviWdYGvvNN3GavrwaIoDphBJu0CnRcS3QL8jEmui1DWqzNxhnUzTdL6dJIVLJqkk5M52M+LWShRub9",
+	"+LZ5EUKPXIuTvSFtSgzpx0YwtjgiMeQpKz+ya53TBZbfhLyn8HQmMcep+/TO/CTYFPD18LeEuRntpGy5",
+	"Ou2h6NhMaWF0bOOSTfkVq7gsjsG0NRRB9sxuROJCWLftyHnA495QXEBiHedRtWevFFATmucrGDFsLfi/",
+	"hyIWUo+cEd5sQwwIIBIjtcUDGXdvSindDAVfe4wHLv+tmqB7LnhnVKLCG30wJRpgSRWRY0258EHu8YSz",
+	"LGN5cwj7nFEx2jHcxfkUm6yIUPtVToiHJQWR0BRDOdKb07zUMpWu28aNxHHN56Z9VUk10YiHcJVw3HUK",
+	"okDNFWdKQ1N3EQbD04YYmObEq1cQ4OLipv2i1vckoALrJ2I7TbViw2409W8JBbDd9+8q7q3H9Tw/JY+P",
+	"Hn1FbCU/gt4Zte4Z3uT8xBoM4H2C0sk2ZTH3SRki4BmoSDQnxtqQOeW5BKg9zbgtfBjZ6nsNZQxtNviW",
+	"IgJM9bl5uZFsiTJqcWN1QrKgmKWpAZgND1ixalt5w/gf9q3YvX9m+I2W5F0htU2Vj7Qeqzo86vc3JkNv",
+	"Ctcy/fzuzZvXBB+AxC0V5PKjSpbao35jQifNdVPC0ouZzDVRGCzlqIw7P6aVxqFqW0my7tp7e37m7Ckr",
+	"hy0JG3O0u8jFMfCsS8YWLD+2zxzbExJbUrpZc6zdGvjVzTGIKNninqwcHKNyt7ogb1yee+6KdvY2hkI0",
+	"gTHN+7Ujf0wo+fuLV9+S1/iS4XoS0xbKdBWR+CDjgqmDYdHvP0wE/MPsp0Rmxdx+FQ+FuZunF9+BFBfj",
+	"E9z+emxfp3NmHydYz9fXI0eBYPs6u3ltXdlzl/VqB9DM96HUFJWhzhYXbhfEQcPRUwGli8U+ZCopy8pR",
+	"Ms6ouAwToQXB3ZpBTvRuTTbObUVSTDVQPQofAwm8c5hf43oDi2Vq1+CZuUyb6u8ajr0PVZ5jPEjwhRTZ",
+	"KibLGc9Qng1qOhNf0hlKt+cskRB90YFGFKFCLVlOHvUf2kxMQeXjuGY/Lju3sgN0vIPN2CzG9/Z99/kV",
+	"NFEGmqhNtJymTsBTpDOT2s1LdUlGp/u2jJS2da6NHD6VREsH54J6MvQWqe0sGr3cyIpF5MujbcnAwpVr",
+	"u1C+o+1Ic3RFbDhzYWL+XRNk5DlHa2979WNX60bKJxOWG629am7Yxa7pWEP1qACtXtRpNTL4DTJENdtD",
+	"A+OXeeNPtW3BAfnnay23iVlD3pzQbAPIoBCQFh2zAG0Z6+YnNttdqm+udRYOrrp9kT8xzScRKiRd6OZq",
+	"4otcIv6AZiH5QltIxZV4YiidaQt1ZglwdI01612JDCOdYpxOCXBDT4FLX1MioE9IbMjdjGVpPBQ1KwxI",
+	"1BiyHtkWIlKICdcIB5Q5UcWC5YqlFnxIh6JVtz03DRfU5Uss8WRWJbbB2mCSATv5vWjPjbw1QYEeX1ca",
+	"tF+eh+3a7773zcMO1qjfbteUi1GhtjiRkVgDoTb7KeSy2RWc0elIsUSKdIPzfkJzW/dkzGbcJsJf5NxI",
+	"zhGhPiQfcudAEHMVy2cr5W8oOrG1Tq+PdlsPX+OaTJlGmx7MtFOI3KhWZsUjw7fKIjlgY4pAFPI8O8Js",
+	"cbS7gXbB3qx3/Vpa7AIXZH/fSQP7wLKLPLMi3GFFT7ERRG3jK13fkdvi5utf2njWQ0eDYj0uFrRjEQPO",
+	"5mdtKCg0JjLPEeHY3aVuSTVydH/9t7UdPQ8tBfXsHKWJyaUf/KjEuX6JdvOzwCCL7HY1Hrf4TXZxLSe0",
+	"8WoHZSGhtgC6gHo0rZSAhPQl/nNIPGOQa/F7Hx/fbEhsEeZwM+B9R9nlkos0FO2sl9kqtmyUzIyW1J42",
+	"+1089Q0FXwLnPHVNGuXVLJ0sFLhEdoBZVTjxhsSU5jfLs6wKNoGtsCU+GxK93RA3j5zOj7T9+Jwvx+6L",
+	"31Yu9JdHjYnmd8wEAodytMFsrti77TQVdFfG0hPChVkdSLlptCeMbIcimRUStXnc7TxkZkQ2bx6cP3f5",
+	"6ou8dj7CNAN+RcP5B9lEtrrhKjdtA60vMv2csfQTpOTbscBpSCubku5TNZrLfAO4d2u+vtdUKSNdxIpD",
+	"nRSbnraSuQ8CCFy44/Z9tvOqp+fzA7zBs3nuM4LvGHRm8XopS2z27oVPU5KwumQMMIx0S6KSzbD0oGYu",
+	"INTvoHJvwttUesCVeeqe3iK2fVtJblmFue+Wa9GPLbiENyT3qA0zxMGgluMTd7XmL6bBJ/5l/Hxum/hQ",
+	"fnEbTMpdLP7HZogI8lVo6coleswuholbuEBZiKi3ea8ad6XI2Hdc3s6eYonqBrOWDXzg4kpmV0aZNNyF",
+	"N6aob8PX1vKH4EZvqBPsiNXh/kARW70sIuZo+5/CIpjNmlluS63dAEnyVdkq1Wq3XyBo2k8iKN1aLmrz",
+	"domd62nlhTBkvCyWcweZ526FQWpT58eVvdq1tM8tgocWUmmWkg2FBnbMjHteCKx21nBS3Qw2AK+0YUbm",
+	"ncoCuNGJMOnhPyKlTdRV67py4jn0/vcXr76FqnH28+nFd0Ajb5tor71vusRa7PrODqn55EYA9kfwvN0R",
+	"hudFAC1sMJ2Dq6h9c67qx40A290y5lWy2/mV8+d0c5BSOIdycaIy8/J2Ca4QTg/8lImt140zyD8XLHeZ",
+	"aNpbNLbc8rY3qRHg0noBW1VUvIMcNfeceXJXCOf2lBVrKR03rN5tw9NuwSA/JbUMid+2t3yUysdQNh94",
+	"V7fobSV365fQaNyr8BKCjwPAx62vo6OPDWN6tBuY29POLZSynNDG4+VRxvdM3XbFM4cIzEZZegcL05og",
+	"a00sLRHKJYu8O8tuujEF6+Em1t8ClrnBglbB2u1SZOtmDt6UhCeY3dblvFVepc9ZjXAVK/djV/3KoqQd",
+	"8pmlhE6poSOBqo7FHpZ3rYZtDRO5oZh+I4K36iye0issAgqZThDMDfjaWwPwbxM5WFXtmhU1S70+qu6f",
+	"t1msA55JYlRIX9xvM715sx4N8VFpn1uSqg2BCm/AT+zQywSeMopw/PrVxRtycHV4gILnwY88/XBQPqmw",
+	"nDVA+h3Ev1Mei4YC3F1wbK0FAAwFvGYr3+ZsEmSJQRfjCYlrGGwPG1jdMlSgyQRsLvYDRXgK/nLMXw9x",
+	"EhPGUshTqawhoIVf445CD+48dmC7ilwFZ9yLV+su+OIdu7vWAh9ukwMqdH7eYL7CRbH+RpkThPmYFXfw",
+	"DGilvWHrDgppRojBIXHlp/Xi+DaPpQ8EglyWXLQsmLez360qXYcST7vYjV2iQurXL4wTqToZa9ekYfd3",
+	"S+ISihZ/i6rBtvvVGBG7kzaAvavbKea76rD1JKT3Fv57kUgMU/AY2UKo4xJdDEtzbE65t/0cl3Vs0jkX",
+	"Lc270NF5IZRDHuMX2ME5tg9fgflF+bI28N0T7MiMt8wY18g///WfHJnBVHud80HXZpQkL149JX9X5vUD",
+	"EvLi1R/I35WZ94YiBpTTSKXxMTRz8bT0mroE6NrXMwNgfQciDfVMKjYUvqC4x+dPAEsfI0zf5vGG5tXB",
+	"X//T/4pZOz30ikJ5+6GwoP418H7kBgVxlL4uL58bwU1ZnH6HvStoNixxtz7NnUPZLW297+5Jtdbtcf2F",
+	"aCjKVaBhtQBDGu0ITlx5WBChbE6Z7jEp1zIAd+aFgADbet5zw4IgUzvCzEpgF8vMuq6tXxWnafrfi/Zc",
+	"h5CLovJ8rZpoy0PrT9sTbL/84hvT00Va+e4FdIl5Z6u/uNLkF6k7xYLqIme7Bz1rJvRoTnUyY2ozoBN3",
+	"MZF5+gDKe+ZMaO/AUZpnGeyBy1I/a3Yquu7UjA4efdkQGPW7J/uDR1+Szoxdd334JRVSQD5SQIH7y2MG",
+	"A849PhUoVWyFEaybKVvLWZuzocyp4BNm2GSjSvQ6N8wXheyIGH4Orti3b07R4ifNrIz0A6I5ooxmxZwK",
+	"wHRijlKoGjaTS7XJW2ebrcYlVAqDWagxCBJ8zDOuV435NBY43M0pY7bKz2Y/RhsNR/CrC2Fbl1VhDxvl",
+	"y7dvTttLjL6dEaxtM0mHWvEYo6gd7Cuj4wcKXfR/3lbJdV0P43M2Mq80zmvJ9SzN6ZJm23QP95TYyTZQ",
+	"vtVoHWiOcS23IdyyyCdAqRyB8myFO7S+yuEqrF3yaI3I1K9NoxjhCNotEvko9+4OkqCnnzcZK4PGt477",
+	"46E37SFCO+f0aUUyGilEy2RAWysxVdMV9W/SsPzRdH2X42/cAec4vsOsM7dIu76tStZ9GNFLFfOm6plq",
+	"67J9Mlv62qLegDQKHg6X95Ma1j92kQHvto7ayhkjml3rIM4f8lAmiK8iyYzmNNEs98nqNR1HJOPCGvGM",
+	"MAHxWnRqJCNd5KKWQG/QX08MFmbQ+9NweN3v75v/fm3+8435z6n5zzPz5eHz4fD6q+c//KYxkd4beclu",
+	"i2+4hVG8veC2UZBRRgncgT2AUttgIQBI1QYpgyU50z1yMZNLQUCNMmflhHBtRFprQob4V/CZtDQ1YY+R",
+	"y1tpJ3JjVjzYotvxJLeI7RwM4Z1rAHZKzOlPNVkanaFQrISmnYCcK5yVGj0IVj6jRco10TnlGbgh5FKw",
+	"5pST8wDrNmaZhCJZ8pjEmALdxuQDU3FB+TIncen8Xo/a7w2FzVh7XEtmWYHWPVBY9Qlj/OPS8BEbzdmM",
+	"h2ZSMFRAMZANhmThrPgIV6pAgzyoo/XUfnd2ku8ud171JDYevpyJu+THY6pYZkNht8KLTb/fuIdvCd28",
+	"ochu5suVtEDK2tomhjJJ3axuU0i8cMnYwhz9ORdpUMWTK6LNnEiHkiCQlLgFiRzw2OgGWPIO/Go7ViD2",
+	"6SlaLfBr/3SlHmmr44gNuBKKa9Q1L0TSXK//TV6w0mW75CKVSzJjWRoU5zuM+v2+WxGs45Bh6UGZpUxp",
+	"+wDUHDFr3GyzuHII8V0AQyGw/Eb4Q3NJ33ITguKi/uT7g1cZYLhk7ozdYIWu3pGPAMF/FKDdCPS39FCJ",
+	"5ty3quHQoAG8zFuSsiuOrqKOIH/9T/+FHG7KUeJv2G1LqbAMQ1w3511zPfgrDKVwDGdoIRrA+sGkzYKE",
+	"SPqw7437/zq88NbcajrLJBgKNmEF/BEl1NKlicwyuVQhbts1Am4oI7zWDKfVCtWZbGtKrQ78wvZS/fYs",
+	"6LP6S2A/Xfvpwo+m+sMLicbWgGh9AjTlroGszFD8ZqJZMeYWmTtk/g0ibTETC3qZ+HASlzchpKZzjmni",
+	"4WG1Idc7F6OQW68/cDsIbXMRK8B8uN16YKexLSOnYIaT2qwOE64jc9X9Qb0t0Gf3HK1VHtOc/Uq5qCf/",
+	"rAsvCvasNXy0FrqzlUGFjuyK39rVLvKpa0owcnkKq2egMtcmegTHOLwcRQE9h8pqf/8x3Z882X/+w49f",
+	"f9gPPx7t8vFw0JwX/m0j7OAJAeABeKkSmfq0avPpwYs4InFh//3jYjH/oZ6//uFgm/L9P+z/Tz/8eBg9",
+	"3DCe72jOqUiYLzmwS44vSP6EpYXR1XdlWyOTQiA2qlbgjVw8PSaXRvCMF3LJ8jgaCtW57pK/I0n/p7/M",
+	"6XXnOiLXozkX3T8lhxghDR8xI8qcZlnF1YgwqaGo2EpObBe2ZoFKY9JpLLLVDbsnvyHJ4U9/uUblqCaN",
+	"9NsWdDps+aDLCbCd97rI7f4eNN10qL8rKUItqQLELdpSI2JF5kYy0TJfYS4TR5ps1N5GCFrIbxdUuVz6",
+	"LTmpHd1rfNF+eg7v49h9Dodd+d0ubO4WNtZ7RlS2SnnlcxY2ILNdOqXRomnvf/0UgAL9n/7SmchCpCCB",
+	"WhxA98D+cUsWBA3elMQabE9jmly2TVpd0ohbDmv3dBw3MFB/Mn9vnt9qdgd9qXknDIt9/+un7wk10itL",
+	"yXhVrsMDZWt1V4qstTid5iJuqq/h8vW58dxiLe8Mc1iG7a5JizbJFSzdA+WAGCSRc6YsJLiV0TKQICy1",
+	"vNl+7g5xbbHW7lW4s37R/cUMoot3hq+F5+vTRe9ZiJRPONOoMM4Ns3C5ye2TNQDmmEEuEcNNETjQkO0q",
+	"0JevamS+7cVb2/BKQ+vTucEcsXan11kmF1xzmsWkc3b6HYKvEyk0FwUX05h0Ts23IEBYOheOKOSUtiHr",
+	"ocb327NM3+SZb6ZyYIIma/O6hUv7NgcpnHZ7C011b2/QDKpd7LC1t4xG3FoC3Vl1wiLoOwTRbw8Z+dbi",
+	"82q54NFBQPqR91N4LLJRFG5ZN+5wQ5Kz/hYZ9daM8pM6UNuQfcshNjiysKrbKRUpT12mrB1OUHrFFdsQ",
+	"KgHDZw56mMykVJuyY6BdbmszLhGyqyaz3sicXls0IaIeRxtKtb9pUyyeSBEWmTfnL2W20kjiVisU9GxM",
+	"ltEjSiXiNvZXqVlzlkRadozhX5d8sUBtBtk0JEk8IQxK0Eo9Y/mSq+bk56qYj+hYjZpL2b//9fmz925V",
+	"jES7X+Zo9YRBrYm5TaO75SrcpqZh7W6EpQeD6W48J/4URv5Y293YfG/sAKvr94JRpffRBqvscVI9Eh8e",
+	"XP+p33sUk7/+x//dfFr9aRC70wZ1BJxjarwidCjAWIDiRj0SAyyI1rrQeZLNGU8pYZrQrBeRv+8Nxeks",
+	"l3Oq5TTvkW/IV18dkc6g3x90yeDwUbfnDBhubKbDwwPVue7+9C8Ii6ZDsW7XCIwW139KDu0xJzTJpVJ4",
+	"VxTRkmRy2oFPQ3HxtOsjGM3XlWl0I5v0y8wX33+giFwKcvH0xGYppUNRHis5ccQEPE9w8BDk6W0j9sZa",
+	"lzcqGg/UUMRr5S57dXizAzT3ahQL8d7B4cZ6EoFlRhVzQF+PlcwKyHmZYVpOLCRhL9JQbLxJhM4lOCSl",
+	"guKfGGMjZIUAzWXOhgI8cTOaTZqIVo88g+VAhRNjApXRwsq7qSC/uV2OUfl1HGE9Hn+brZI24deQ2EaV",
+	"YPYqsFsgStEebvzLfh7Avyv//cp+xu8V/Au48HZCor9y32KX/vOZuLp4l+t/qH239nnQ8NJ/qH239nnt",
+	"pcoXADv/IaQHr8pqqjuF/rqzGgQN2JMa2UPua8HyLGsK+0W9Der8t8Bn+rr+IBAFN6HJ/1d3j1VfiCpd",
+	"b6WWldqxd7dEJ4Ta2isZm2giC000vQTch1ez73XBagg0BsEhPiClkUgJxlKFqUMtOdaSjNkmkteh4A/M",
+	"YabmTrq3jMSBb04yOp2ytBsNBTyMo6iGa5A4mPUxwbZxrYDZm4cfKHLxdCjAIEFcbemHx4QaymzjZpay",
+	"bNKQWyMupWyaMzNm8y5jqZyTjtmAx4/Ir20tMbWgQpkpIBoJqKbZra/6XQ/QKYX2QFYfNKZaXj9oHiB+",
+	"O5Xofmp57gbf3aVoTAOY17a8fg3Bb54UOderC5CpYcZjRnOWPyn0rME2YL6WOf8z8Otj8g08i1paAvgq",
+	"h+giAIRSxxWYVgSxSz5ADWrWVULUoC5dOuciPiGKMVtNCVLLcCkeKBJf77vZ7iMgyoYVoVJg5H8YUini",
+	"zrRe7H34AK7SiVyfUlCxB/MnqEqC7UIAu87oWObWcRBYPjzDjozwo4aCVn5eSwYVodvBkCEvBoVyCSnL",
+	"1Rt5L+PJCqLliWLgubE6T4QiIDQVkUUmNaTTvmK5CoPyFdw8m6FdReQPT1zCUtMkFRXQ31AMxRdfoLiA",
+	"m+Ri5alG2av3xRekLJJvhDFzFQodJKVAycgWDWEpScy255y6KGGjW1nqqwjEViD1WBTjjKsZS8m04CkF",
+	"GCdG1fl1x8Uxc9PWNoDhz1MjOxkqKFAqsWLKxavXQMWGYpGzhEGpyxNv0TOk1q0FCJvvCpphfg0LGbQl",
+	"CKzJr0ee0WQ2FLbCgkjD1Ade8s7ZglGtUCfkgsTOXBPD6v7qV+RUiiuj8UuhhmIf462QTWGaALM+StBL",
+	"Nkqg1zfcfXv+/JQ8fPjwMenEqD0dE29uiQ2BJ6bHt29OiVEHCr0odI+U5gU4xJgexAwPgiJzRt6+PXtK",
+	"kJKonhkRFgXEHydccM3I2bNnz/a/enREUFlTPRy2hdhiucZv6bcQkC7gndWJGY6FxmHIWlCtiCtNOtT6",
+	"3+DHisPNnanI8D1SVTbNapfIu1xK3YXkpEZ7jJ3yQIkysxYsgxlZsk+Q6CmbKMLVLcDVV6QTN/GEYyyz",
+	"D/V8CHFWF9+UWaQkk0bRpkYGybKIKIzg1KgGmPVLMCoH3I/Qm2kL1AVzp3Mz2tQG9sHBSWWCtMevGRKs",
+	"MTshScYN4yFqZpbMNIShgXwqJOwYTEbP2IqkEt41s4wIZFkmRsnIiU0RoghNU/sGbj2cQKNeevKnIke4",
+	"VGQvloqcYgdkCQOVzUrACSzP2zE5NELIl0fkycXp2RnJmNYsVxFJ+dRcU8gG0DP0fmT+c2z+sx9HOCWK",
+	"VeVAsaL2VXO+4F3SQbZL4vJ4x90eeSs4JC0ArD6iL0xrAbaf5j5PiLuQhp9hgRYsO2vmBGxlKJAUxgdX",
+	"hzHJpVHjUEDbgQc+sZhjLPUCMtFQuKhZ7OfYDOQ9fiDvQZ57T6Y5Nbv8fije7+/v+/+bB0N2St6He0Xe",
+	"Q15PZFkQ/QjbbbcospWgzI/mTkX4cKX6Sql+ds5OvzsAO7/tNOTa5D15cfbyAnA8U1co9j22j9zc86SA",
+	"F0W1iq+R83eCBsOYDZS2+bKFWYmE2e6rMgJ5bziZ0nQyaewWuVvJ2owyYPMbe6TVCbFh36H1yoa8Vozu",
+	"dgQolJD3pFI03UwbRHkgqab7wjEgHAVsP7QxFM8qsgzJuNLI0PEgIAUwzSO7RaUbiruZ6zoUDaLPMaH2",
+	"hM1kBpaiL74wZEYK9sUX1h4wB6uJaVaztOdmArV6zRBYSti1UVy4RgtKDkTUyCeQWkh5kmaedkw/Y9pw",
+	"J8OhXy2YePL6jDhJ0uWVduh9aq9QOXNDsUsh85j88Yd4KDqunYe9PrqJlb0UuFBg4DG345V5aQCra145",
+	"e2qYqmCJtnZhZYj1Eweei8icZoZhYikipPlwCq7kJUt9TAA56h+eIMvi7lvLaYxQZ1cKBwRPP+yR+GDG",
+	"aKZnfza06wBKleGfc6Zzniib8uRALpigC95b0XkWDwXIHkLaTjqxWzhYiK4jTM/AUuSoEJbLNRspyFpB",
+	"1E4MW4UH9sB++5t/VJCGBWnlUMS2NKShlA1lS2O0TMVWDmmqYnpsmISt6jiWqWVmRnwyI/rycf9wa8VH",
+	"1psCF40P/I07GBxUs8aQTjzcG+7FZqYAO5/JDN/vnmDvpxffkYRlmem2dQ3JiMQithm7x9Sw68VspSDi",
+	"HQDBHRA1CZkxmjJYZvj6sOsgaLajrw6cqBfb4ZQAXTOem4pTuubeFSxfHYPabca2oHp2zFNkfjEO4vgs",
+	"ZfOF1Ewkq/3fsxVkakBPg5WT5lwZ+VZYE0C49NAQCtxcOet/jnzVFtyID+xRe+muB1Eroel1ZIvkGu3J",
+	"8njktgEs0vDRo37/BA8PEi6uhsJIQPu2tXHhaokaSa3IvE/FSD08YaRj9A+bnTMwLzqhZyjMnTPyh7+2",
+	"+EQESS0g1xcv14hcshXIgkeDgeG7j/p9VF8M3RiKIaKjBc3wKg33kDzPmOFtrhpufGLdFkZAnJqB2BNs",
+	"JbVMmiP8rQRqbzqzAjWiy3zdXa4qUoZXqVB4dLJAtbSukYjD5ZOCgRjrkTIg+AHVvgTkLCi9GU+YTeeF",
+	"QWR7RnbNOdM0XwX1cUMlF1Gkyqaw7PV7fZvm1dCoveO9h71+7yHiQWdgD3BUzvw9ZU3ATSiFqcig3w+K",
+	"0S1ymTClgGhl/Ir1yLcgPjnK1/P5obkUZ+ne8d5vmf6d7armCx30+0EyDbDgBBTvH63dBA/qTbYa7AIt",
+	"ArV5wDDNajzC/pqa8ePCDGyCZkCpK8aUveM//gAuprnZhuO9F/yKQQ24aE9DLr0/ljNXWKjS8YyNi/w6",
+	"l+b8s0JhJCu7XrjCOqgP1tf3BB+Bcn/API14a7iPXsr8EqN0bM5eRXReKBsQt7YnL+3IbtwTM66DRUZ5",
+	"bTfqBqu1hbc93MfSB8s29/PYuAkhp964E29mjDhhxetqAZVYUkXGBTdSLdhLWxx729xux94NcoeFDodu",
+	"5Cw3/Ij8hycvX9zH+r8JNdptS4/iU0saYz1Svlwvtb86G5BlWdxn0onIo/7DoShd4PVdIfFcpgwEjxtL",
+	"AxuBsKwNTBx67tiWKgQbjjkKqfPTgLbmBwkj6VTrBZNCaJ6VMBvTsjIkdC7BFILMPGCfQyMG8ISBq5Zr",
+	"xbIJ1MjEOr9xoF1UCgBHhE8IFasIpADIFMVzktHphrt/jrtyj+Q4KA+8fl6he8OEYT1vfT7NWw9vfusC",
+	"l/atoFeUIxph29EuR77lWPs0qBtP9hdfgKX8+Isv6sbxNb1X5k59A8EC864RgV6dCc+NvAT1bxBhGwfB",
+	"JDEYkaw4b0UfQcaroYh5Gv7YI895BtaSRM7HRgwGefHJt09PSGwIGtwRLizmClUcLWObR818F5Gx1DPD",
+	"byoj6JHfs5ViUN6LC2s8WVClrLiA9deGYkGn7IEicVDKK4ZSYe7v0t8OweA43JPaC+aaAhpFirJ+qWna",
+	"SIf4kJmIXNB3BTsBeatqqEwZBqHIHHzsCOaZ09QuCJAS13mEOmG/6Ra94EqfuhIMXl9QEOdvOOUeaAMu",
+	"4cBxNVq13R0KUWQfouZmy7jXu2vT57u8uyZ9pFO7Jitha5vaDCo4tGo0KAxRv6zPaJ5xc9sqJzsq7wPE",
+	"hzWMwdycygDagCbX+39BdUPv/uZt6h0y4X1s36/plBHF/7yxF1BoKx35SNdH/cCRO6j4cRtL5jbJXNX7",
+	"bbVJRzbwam8YmK8H2PpQKRBrfrhHvgcnF4DKDXzvlWAwIYjUAtoBvO+oDe/7hqbO0w2vHN78yltBrUmb",
+	"pfhSC275XOZjnqYM/N5Hg8c3v/FGypdUrOzo1M/EzT3/PsUgHG6U+FXAwy2//iHaWzO4Yh6vNhlWq8wf",
+	"cqDfgwSA1WfBBjHhukfOkEt5t6wUCYtKfmlTpZtbkSLqC78ZWYMAZmaHgHwwAhvJFlvaIB5ixaA1tta0",
+	"MeUjePRtlvz7vV+bdCAskvwLv1L9o5vf+Fbq5xDE8zd6B5+4IhbmiBrNDcANFiMBPiyXhOO+b+cBOIxa",
+	"3dHtd9KZ+xIjiadY09himkr/llNU80JELlkKCPDWqRJ4r8CAtlgwgTrptpv4BKbwi7yOMLQXcqNVAgv4",
+	"fr6Sv4ArGRw9cN8llsi7G2gv06YbuMOV81Xq4bgtpPqoi4cRhIpQoxHjqCOSMwtK90ywFmvqsdgy51OI",
+	"QHIAEyhHDayyzGydcYFeQ8LBNB+7ZkZyEp9g5m3fkOejLn4QvCmargAcZAWPHjl3qMnqMHxacvOG/2S0",
+	"V0hW5ABDFjvaYZbsQFtDAVECELtnNNvYY1Nj0rE+MIioAj3CmpHBctC1BMgvj3UaxQs0D4zs4p9Y05b1",
+	"6bsMB4V4oJxXZyimTIP3B338DiPGdeSdL262D5SHZtEc2QHkmqJqKFSxYLliMPlXLsGUz5AN5BTP6Yxy",
+	"QRIqMO0fBGyQzlH/cTQU4ICKbZSsGtm3rQvsHJJ/dI4Ggwgdn+Mc/nFyUukc9WzKtHfikWxDgeV3zk5/",
+	"R14e9kln0B8MupHLe1wC2C5evXaxvYbYd8GlGoN3a2S3Lj7GMeC2AloKOaENCLH7CLYLwVw0iK94Aw3a",
+	"w6JGCozfZtsEW8bHhGqSMaowlskFlyAqyx42moEhFtuZ0+uR+2U0ySkAObCZuVSaDB6RX3u3nosOdEMZ",
+	"ClI2a45aZk5pdRJuCIkshIZ68OD3sk117Si4wOgcNbpkCx1OowKdDB6MLUbJjKHjUPKKX0dui7qYAM6n",
+	"x8eexlLPRgBLHjGRqpFgLLVppc22wGTMcCt3zSwA2LusE9nWAXAnfManM/PZQrxpnsulNcwC/plqfNt0",
+	"eAImKNOIRRrhWOwIIkC2GcatbQiyg1gsZytM5D9lguUUYE+xfas0aMEid5vkB6Sczxw1/kgJAtjYNzJd",
+	"3Znw4EfmWX4V9QxJE9eEl8NPo0uESQvQdw/9v5DJppz1VM/Cuv4KwKxxjTlCgpvqFKNtrp5/Y4JTv4Xg",
+	"dCrFJLMJno4OW4zpNV1lkqZvpHxB8ynD9x61WQBVLLCc2kuWcvpmhSk+jwaDNi9bT7iRtZ4JzfXqb1U0",
+	"fFaHzAGVAxEL6iug5BWUhnYi47vkLsTFRSZ1b4EBlvdhSKFzBgBCcDZAZ+pqGtuZvf72t4TP6ZRtU8Be",
+	"Z1K//va396mCwRgO7Co0mHTHXFA0Z7VxBsMsPytdP/vNMgcn0LYigqfo3o0e7pTfw5W6KMHEXgz0AWJz",
+	"ml+y1IrIVkOzM7fBzRMOIRtDMaYiRYWBlmWOFlSwDLJPL0FhwavpsVUUMTKAfhoKQecgZGL7PhIniPIx",
+	"rVsv0U3X++K7T3C91dX0N9e3Qnd8vtC/0AuN5+b+L3QJuG9nU6ki+2t3+GwtpAzqiC2IluSwDxBLG/8R",
+	"xLLZCYOqhygTWmqHCGTG21zecuJKKBp1KC6/j0vtDbQrp+t1e2QNhdkjr4PANwjNqUenUbFyIVyujhYE",
+	"z0IRS6ot8F0RdEKbxbBE4aSSm20oQPtSoLghabKVi4miK4cGxeAnqPEmC614akv/2vBAlg4FaoAyR0JG",
+	"KFq7LUDBWsUx1GnCNUbOWtM49gOI16E46j/erNUFi/KL0+vKse2k2PXvZQC2CugGb6y1YS18QE2E0C8b",
+	"W5anLP83R3Y/62C/RK91GDChsKwjxvcG7CXkAi15zBaekrMg/vIuLPXnRmNUgTvMV95EA7J1aXtpsaMr",
+	"fu4HyoPNzBIAHn6zfd+mYbJCJiZtssa5ocgLIcCiB37wyMYOzheQqAfNfBjl4u015ggekxgjHROaxRFE",
+	"9AFE1OdNVNbpbi174HX3YZeds4tXB2fPTsnhV/3Bo6H46f/4qnd42Bug6Z2kOZ9oGx2bsgUEh1oMm3UZ",
+	"uNhkV5sTqqlDbIiRfoM6puWSkY6NYMKoZHgu7vbIBQa8C2SmTVzk3G8++wV7+88rR3ST1x82lispPkvI",
+	"Pz8hCw6Wk5Lx5KIEhhSALklQr9uTN6jgdRcmJXTT9xbp5A48/298xJoNJC3lf2tDevocNV6wMtlLDZ4g",
+	"QHsdOwHXmtWcabhUVCMfshEFRjiIhQIi4BTtiMxlyjJop0yN40lkmeTpAVGJoQARYe8KTKswFEj3kALB",
+	"O1BHUmmeRCihoiMT0r5GrlQzdCXzS/A+gmAbbQgujrzWAI17v5/wCVadgO3w874kJOlgoVcoI2rTHThH",
+	"CxYY/bMULDLrCPULrYEhQFNERMmJXhr1AJxqVdpsQ5CRIg2FrZbrrA9zml/6TOKofXjPLvj/Kt5fw6S3",
+	"ojXO4ZC8fvr8U5FUe8o/2mhoL81nGvqz01Cw+ORcaKhkHGaewT26J5oJz9yBHPhSQqmTkPjXcQZESxLb",
+	"6H1rn3ClUmKkeThTlCZddVdIdqBsPgdsiTVWuiNPoGkgWm4ctgoIav4QEIQ1BNAnS0vPaudoMPA6uhSs",
+	"2yNPKvYFrGyUSTFl+frMIGTg8TGYNSERDTdSqqBZz0jIushFKCJTyBkk5BIJqWqW1Uw7dyGm3b2uj2P7",
+	"mfT8jQ5cHBVLP+vun3X3TwCtq2chuVd0XbVK946ybXSDZfhZXTDzxdINJVRES9kt4VKVcuTHZBFW7R8K",
+	"I8WBRFcV5XyteF/Y/wSlzKDIlisg4UU2TIfk0r1aAY74+C0srL41TOuiXLZfpKpbLdy+QUQr9/6zmPbz",
+	"3/vySDUjaneUzTZY7qKPlseeCAKlDHMpeFKeoeOwlO6UG5kNskxiHjybZxKdLIRqpz/613uIkjX9OVmN",
+	"eqHsgSofPHGSHs3ioYDkw1byUyXJDGWiDlXk9auLN8TKpNaCBpc8t0mSrd8I6McDRXKjnne8SChz8o7u",
+	"215ym0oFf43WfxFD4QbYxQp9BZThgnwsG8oNmz1hqbfVyRxiSBEp7I2YFnyqWCJFum9b8XN6YlOyuKWO",
+	"CCWZTC4h0/tQpBxYY0poAhA/m5/oxKYjZCkUuYLTZ96ypZ/h0SZCaA7rL1OE9NfoZ4IB+v5vpLqfxcnP",
+	"4uSnYSsfz022SJBrBW7uGCKEQmTFSujjphoQBZDSQMebpLfvarVyfoGy21qRog2EpLLwnyW4n/+qfdec",
+	"JrNRmtsCdm2J62kjyVWzam++Z+QsyBBqmh2KDTk/rc40pjqZYfYzI5iEHXVPfOLNoZjTlfdzCOYLQplb",
+	"OjOyUac2KBtrAylyKgEjY5pclj5LK9kZiQ1y3ftNiiMipJF2Msip3K36arm2ee2qCQWPfXaeoYBKkFDy",
+	"ztV+hCZ+/fTmGpHkTGNFHQX2/6GAYoZ//c//rRaBUmbv7oWLPNIyYzm1BfXiCAXEoXDYpp/+edAnv3a1",
+	"vcnbC/Ls9RNy8f3+10dfkpfoEvq63+8/DU281X08WQ82sr4kM/ucp7BGkQs8HYpKLm342gUnuUDUJ2XO",
+	"OlhaV6oS/VbO0GlkS4XagyumWjlfEMrlJHGvr1dTwRKXzmIoqDaHF90phtjbxEgUlh+KYYeNg7juo/1O",
+	"oEiOfQ4jnMCdpGwdFdeLbd6lYEelIWw3GgpwaYGhOJeYLt0F/WAJQHT8AMwMUsfkVCiMj3IIB/DKwcId",
+	"9R8Ti0F1hcERNOYSP6INOCwAPhT2+oyE1CNv8e5G3lpeRsVBAnMRKBPOc1g2Eoa8lU3U4GX22RlVownX",
+	"cbdHjgaDY6j8E655AD5wuxlEEZo+K0cf1noUnFvIkEox9m4DZu27aoXDX5YW0lRl7xMrIk11M1tIEj7q",
+	"XBbaXPTPWspnLeWT4DzAPNSMBigzjbeUoLw0cjMuOsiNfvBj+eGD03EsSbyncKLAD4iZtFOXTbYWeOCS",
+	"4FKNHM9BnodCyGX32JcCs02qgI9pBA8DQYZ3sbvcx0cPRUdI3YZZoDxlHnbcBsEQmF3OpkDDVBTgi42w",
+	"ZjrVrtRggE6GWS0pBiaDa9MWRFQe4aJYGFSOExtxMYKs75A5X4CBThXJrM7xlDMxyixlEODeI9/XqpRh",
+	"+3N6jW2P6JSNZrLIbVLuQIDhyrYDhdRwAXEnjMApGKa7w3T0PXLUP3JlUSAQPWcAvRPgpuCCLGXe7Jt1",
+	"qI8z8VxiueTd2Fopxu/dnOJtc9zoLvnZ1rnJXCIKyRUjOQGHNEJixooJvSkDF9W7JyC79+xAbiu2JQkq",
+	"t/6zFv6LgLvU6kOY22qP5Z2q4DexkLuNs3miSIyOjM3hPHG0bhMr12GCaSrXmEtsiUK8xl7M1YUiW0MR",
+	"//YZdt2SYxolAopCwOq/OHt54asaALAmuXTDS1VjpM63sj5+8FkcDYXHKCLIZrOOUNLDj4lwCanqPekL",
+	"TQP9HO7yWXv4rD20Ifl/KKiRSVZbaN+dxr3Y4j2tdIKawJ9hbtYwsRSKqa5uxXgFiJdN/ouXtut7JADY",
+	"xTbPg53/53Sjdw/+yrKghFr1rITBDe4Ebjq/uzgJQhED7KTm/JHEJkrzJ/WwR15LpTE1OOacgsRQ5mGs",
+	"wSZWQ1GGN5VxGvUz75pGzfE6+KUz6B92T4aCQQblvJw65DeLAhOrq1VdwnprsVxDEeR0K4fOrmmibXqw",
+	"2rhKhBjSkaFwA7WRTxYojKBbrqE4OqBJcqbQeu3LCMvJUASGfqyVG6RXfeDrC6swb7+3pauZXMIUsgzi",
+	"sXrkiTUAlCUgC8HfFbj2XBgBF5XaztFgsMVs+tKl474PMQYb/5kEFzuzBpp15uLwnHGltvMnfochMS4a",
+	"S4G63aVBdvP48No5V0z+cdmiHCOJA0518KM5Nv/W0kV9FsV+gZHHcHk8NYpK71so8mAl/l2ZWVX6smf6",
+	"DoQwa6VEJx3mcwyzdsabSx4hJW2q17CgelZatuCf+7G4PSFqwRI+4UlAzgIa18LuFuTiKkdUJuI/PPrq",
+	"6OuHXx59dUM+/h9+FtpeyqOfjW8///V/Jdxu3P5+W2jajvcaYWIWshoRj3d1gQakg+2C6IQZd1OWMc3S",
+	"7iZd6zUO5D5tLQDi3aZq4aB7n9WmrcfOrKBdqvYYx1vrSA7AjYWnrRgOYPeIUDIpsqwSvEI6UB2/jLYA",
+	"6b4bDUUuM1s+k5YQ+Y4Na6dQx/VJPpViwFMyo2oGJfq2yPZ4nO5JtsfGfyYwg53ZhkvigOp7nwXWzwLr",
+	"rhxrAaH67gztTj4qXOvgR6ADHw4s/2nn9qmJp5a+JFQEkcGGfBAOaDbzp8+OznNXP7xauD64F6XZxPpY",
+	"tA1xA6tKEzl5iqP39ORmCRemfWsR9wW8fb8i5L8NEvL/AxnSHj7DE935u5MrWYhMJpc738jTjNFc2Wgq",
+	"QEICMLQSN8XKELdGXMdb6Przdfp8nT79dcKz9/G3ybrEdgfCNQf0gJXVmoPK6h+lfR+h075yBQKqIeNP",
+	"BAU/sBYQcETBiJaaZuhyJp1YsXdxt14y6bXMMp/daCgqNQEbK4kqjslF0XhyHGZMo7nungxFvZgoodmS",
+	"rhRRTJMOQGltXX0o08cBGmddk8rwcSa0UQMAgjGjajSXOYsdcgzj181Xtu4RWbKcudobJJHzOTg4ekPx",
+	"HGICDGuvjkgxn6AOK0w574cUCTt2zdKcDYUo5mMoCWvzn+BSWvmixK0r2y9AOyjOC5RpxNSDNmP7clhA",
+	"P1CwSOV4BGgys49xBZWPNROu66A7bARK7aeE62OITQFPDGTlA2HIpomCGJQe2u7jiMT2+x5N0/iYxNao",
+	"j8h2BPJ45HvPBZ9EmwGo9snw17gLkbWNQEn/gv8pHAQECuuwgk5Z2sYM3Zzykc0a5R8O8ZlSMLXRbHEO",
+	"DT2DzV1nNrcpmXliDYjlUMwNcI9OGEs3mRbhDu1eU/NOy4oe9sO6oof9GwuL3m8OQrM5z1kzGD8s6fm3",
+	"Uezsb9FFgazFHFuzztUoo0qSFfzmdhiRvGgN+itj59bT40PmTZcXoBOkxyvLjVlKh9hsyJlqOCI6yBcM",
+	"KBS6jmvZTx/4wveVNIL1UKVjQsmgf4j5EVRFjwyIO0SCFS6rAXITVEmvaMZTMi60C2jDkSVU2JwI1k8v",
+	"cwwTM5yTYSWkCOpB+a2F9INZBNbciaHfWL+pi6BBnmUWOhg505wVzcOMXdXU2Mckp8uhSKmmZSE2Pcvl",
+	"UhC6pKseORM4fi4WhSado+vrLvYS5kN11cHGbCVtdhq87+iMPw4x55ANAtATtnSl+Yixh26fyjppJ867",
+	"b5bE1yRw5dwyOmYZlH00CoqEQgidtbpZikwl4ULLMEwSD4teSlsDi6QScJlqBkkPh6ISIXniLglPK9CD",
+	"BWTJhVHBKvzqV78iZymbL6RmIlkNxQUzok3w1f7v2QrStc3ppRmhhkoMik4YFn6H1uGKuUCIocAUGSAJ",
+	"KBQs2ByGf8kWyJJ8qa/BEQH8PkbrWSvoAwBSiCnLwSoLcppL+nNss3n8/cWrb22dzUmZMtdwv7zMmykS",
+	"6YPOSUdJspxxzYha0ARj9ebMHHsrO9kVnVOtWd49wY6G4vTiu0pHwMdIyaR9fqOcLslYpisyXmlmtMp9",
+	"ckHnjFyyVeSK2vtJRTZDqANfGsoIzg08e1984TJODgXxF+qLL8xaIKClnNegf1grng+jACHVIRBiI7YS",
+	"G0wbbu85W2R0Bd3mBYtPiJA2YQmsaInurU7HoYZ0OKdjcjQYVB40C56xICGqm64nAFyQScanM43ztl1D",
+	"lIkZsNkDGwRshU3XguZzBso9rr6A+nNQhFGDexiqFB71H0OxOJz3OdP5av/JRLM87hJuNJWyjtqEC65m",
+	"INJyQPPtQ6is7cycZUucDEkxHTwylMW/PpMZBstcspW/WubodGLNrvVBoq7i7lAYthqAuRVh1wuZa/Nk",
+	"j3wPozxFqWX/zWrBjol/uUykPRQIMcEc1spG9zpdZ+14xkjHjIhddhxHAHcqy82TjmOYSGlil5I2Jh0J",
+	"TJBm3RNb+SGui1OxjcUNugWyOWZOEO0c9ftdbzCFA8oVefvm+f7XpGPoI1bdM1dnH68j5GXlivCpMAew",
+	"i/EpR4df94eiY6c+pyvTx7tC+mKg8XAvPiEvnpstOj1/8ZxkXDCow9ftkRdcQLC3GSscyKFIZjSnCUQO",
+	"KxL/KnY1JnB7wNVjKNwlXyxYekLGGRWX0KYKf7D2WzzkEhRB6Nfqj7hhPXIqs2IulAeNYrVOsUIKdGyW",
+	"5z1J4CHynrgdIe+DOoxyaT5aEch8GIr3+/v7lf+bVuJLLtKYvCcrpsh70FGghRg+wPsxwSd9MIF72PE1",
+	"7oEMG76E14EhlS8jq6u8ijo1Pl2N5Pdvudj9ys8R+et//t9Iv9aCo4blyxDPVUZIuBKOm3+AdnARRhyW",
+	"RMiyl5J51mbqshSsveB+IBOaQBrnYdHvP2SkTzr4CIpih13TkCEtr4JKnYYp53LZI+dOEnCuAWuwhNqS",
+	"FQoPpSDLGBBzX+0uhBInwhThIjoKyaiuNlLdjq4D1gAbqfUQrFfHirDIVMpuaj0EK9btkXO5tJyWY3p/",
+	"w6+99GNawggEsz6Y2B3uQdgvcD97KVzKZrgFICLgg/D+t1aeLRQjcQ/MQylL+JxmWGc3IlQQR9eACAug",
+	"UvFh7xHbfxh3MS0FMXStUFSkyhXplLk6IfG39FtDUM/EJC7zG/JLFvp0sMRczrAZuyKQQxuycnABQozl",
+	"NAnLMmQznqUYIrvCosTKTPKBIuZOe8oKJwtfF65chNm/tLBLmrolRFJDyZxjFgW/hvh7ZMQcAuto5fCS",
+	"vaNiYGQfS3JtPKWjaRYvZogdlkkF3xc8dNR//CXKQrhvmDsBc6LBJrCcxAdASg/gviQCr439hIPDr2I8",
+	"Hs3PQ9IBPDOwxi53uUIpEdex89f//N+wupEXsyEOxhFWJFsyNx254BjzyqN+34rc+DkskNR1OcQNowee",
+	"hqhiW0nXNDXo9yPzBmgscJGxaC6KSahzgMJi7VfMao++RSmyla3CKMU+UhMEfJ742rR0BZLQWGLgK6hM",
+	"iIlDmQr06wcKGk2ZEYrzAJptmrC1kcF6C1FbNgcyoX7Je71e7PYNbYLXsArHQxHH8VD8ysoy2HFAdRcz",
+	"qSVIBfuHpGNZ6zoL7Q6FOd6R05pQoazyA0f6I08TIkdhILs8bGUkuHmeRS8Oo37vUdTv9Q/7gyja+kT/",
+	"8dfNTwyiw17fPDHoP2p+4mE0wCeODg/hCTw97vcIXn7Uj77f7/ePBhseOHz4EB94GA3sgm7AjJwXu2fP",
+	"CCT+37PV3rq5zpwMOGleDASWYVMvWk0Ywlw2mPM8huwuIJLbRxMcrZJDbxpX+fC9j80Hq4NZhZYR/WVk",
+	"9cZA6lIS3z2iessQveRuRicN86mlKtg0ICf9t160V+6FD/eWarwIsEzRnlOMqg2sLwRwfvPl2GjMhkSa",
+	"Oc+5eMHEVM9Cg3JYH+HTIaXOi5uyvdhqQJiLwSaLyH0doI6RNy2tzq02PxRrNpwIvVH2JcsafFkLu2HW",
+	"RRGEMDTZCtYXOgbjAYpkesaV03t8yScbJSMn4G7ywUKoXVeNF0aBbhP1MJYyY1TAYWgXaAGg9sJV5c4L",
+	"8W+yJvdnzNovsG6oVNpcT3uRJ0bI8pc59GAU20JcwyQ5Dc4LOMztvP2bHRiO3jjHM3UGwGMYsRP6bTJo",
+	"b5WwqiyYXb1/Br+r+KdzljAOeWaqBG1DxMZtZJ3zQtx7XbJCbKHVnzE0v4CwXOcPwMN7p1fsroE1FkpT",
+	"+jF8JkUVVW+PxV30yLnLsJizofAFcY2qFDkmzLwVS3kv23q0PQZPcTEULqdgGp9YFInzCaKTDdENPfKk",
+	"ET2Bg3euQswmDxqlHYSLKEPQUDCM0pHpEzjJDHOPcjR6zVgG2PoSTeHt6+chymgonrLc0JZ61lFHaf5w",
+	"GoWeiCKr5PFSQ5GyhBuSFZFavhKor2ghTSNbJ+h4KA57QS/LyhA3JuQ6JrGbVHwyFIOwiUQWWUoqTtba",
+	"4w/rPfr8ktxllq+9cRS+YT0YtnZHCilFw+xepkVreYJsYLW2HvXCOLVm3I1PGFvJYmYNFfY0YE7VwPeA",
+	"4wp7i+oZQuH1SpcdX6V6PQFoztApY47OmCaXYNcEI1eQV3QovgwXp5La7JjEUEFKgfpkJv9V+GyQMc06",
+	"l6g9KhH6lXzSNJxa9xj6tmfI0KsKss5D5+AgQ+sOlCUnxOfxsbQk3swszz0m4pfIM93oNhagg58/s89f",
+	"QA76aiJfRHwW4k6xNracEV7ijwfeWGJQ0h9fu9GZY2zNjg6tJcN2ZEOVxj3V7RGAPHJF3mGuGm5pmkhY",
+	"nY+CoRwJg5zYJMPOWVZahDold5dLgfXpZR7m2/DcooQZWguz1aN95aUAfav9zXlQh90OxUZwENmODTIr",
+	"WiXRXK0JFmZN3XI7wCFyWKjxZOGS3t/vRH9Iuw2sFlyxPJmRTanLrQMEU6DZXjuKsYAk1oUyKH9sz4Ld",
+	"8BJCDIgGrVg2ARah6SUDIdFzkJLvF+JGmFCEEo7NAW22BVwkFj1k+pqZtn1Kbetas0fjxDusCE8rmKAQ",
+	"pQPeAjBaGDnP8ESbNNQxP8PtLMB4RlXYqGXlbmrIiXEpcXab7ct2AT+KjdxDoRgc1c8U0Hgz//LyiI/z",
+	"yksx3cFoPqdX+2xuun/tN039adQyMDy9c3nX9IzNd+HmW/Ri29HBj94n9+GONeNJCUpAchkRmuRSKTMv",
+	"vG8uu5TNPhWBSrumOENizG3Mw3dVLVkNWi9Py4IJOC7MbukYAOb9L8EKG6R0pGIbBfV1svLi7OVFZepr",
+	"jM0BH5wvpxqZ5kd0N/lM7rUIYmVtPqsJv3Q6s3ZLae203pnCUOZiwAvr6pLS7C4qVn+zAvHNVhiEeQRV",
+	"AgPvmq8+DRE3lRqJ4JseirJ2qtJ0pSKAMdq7CoVUMddPOX6biLxewrqBeHxv3ykL1rUJTP2Ie//2rZHm",
+	"7kuc+94vwc+Ufu7Gwn9l8dvPJQA/y2+fkK66q2G0ueCy300pQEw+sXNU/ZlSBZT1z6lI5dzWQe34SI7D",
+	"wddkzLXqlmLJlF8xgcEhypFHluRMe5oHZgGHDRDZ6sQD1gCaB1E7gGQx5NlGgAwFZNaBuhbgmcjk1OjB",
+	"mzXaN2ao95RkB9r+mVRS6PsG7AhsU1RajuwGqBmARcUvvwLCZ3pz//QG7jaheFgCQmNJRct8A/i0RyFg",
+	"srbW9OWcXclLC36Flk4sFLUEDvcPu6Vvz+YhtqnrId/uUAQoaGcVy6Hd1NIrVNkaM+jAcB2p+GRyVYU0",
+	"HK2vFi7L51SJv4iSV2YrPv6a5Eyk6j7LUymbsXVDSapqno3A2X1Fs4INhZyQ2J//oLJIrDK5YLFF4Y6p",
+	"YmGIE5T2BF8FKn8XT6Gl0uEeuzfi0ndaDheVIpHKZdnhoN89gcBWncvMofoVh0pOP/3zgFw8JZ0lzQUX",
+	"Uwxa++mfH8KX6Orogq3EKGxDcTFjyxnNNUngv52zi1fkq6+/6u8P7HS+Z0pPAcoEFv/D/YEqG4/I4f5D",
+	"FQ3FYH+gInK+f6QicrR/iLanw/416aAjvgumXmYWkiIio1xYVQVJKAQfACgzrM91UqsZidbjjHuLz1DE",
+	"voNjMqGZwspaV1xm6EHBjOPgJ3JFKYMc7EPBxZXMwBMDEYcTKMmFcR1LubY5UA4L3Ql+04+HIsb9AM+Q",
+	"KLLMFhrDLrkqF6FHnmA4BDmESIhyVkNhDvYJiXVeiAQTbbhcKiI8EeDHh8QqHUFziPfRbi0MQ4AzCdeK",
+	"WIYeBfIhgGITFq3XUpVLMRR/OCXAyNMiZwpRbpUqqhHJ2bTIzDtNBVWbrXwwmg18ZBtC/W4SDn+KMmJN",
+	"ffjZtoaNwzq99q81gNmfAVjY0I/QHxkRLsBZerUxIsEcjDsA079A32ytd+uq3dy7lnfQ9+/kksypWNXv",
+	"ZFRLbVQloBHG6uuASG8apfu9OQ/LIEzDMqhkYRl84iwseJ82Od5YzgErp5WfceSjwERaksbP2VnuIftf",
+	"zifaSRw2iYm70FCmGuAAVsyoMXOzOVXOG4hVFh19NyXfUOo6WGRS99TV9J7EL+ilgtnCfuNajEPJFiKC",
+	"FkaLFLDLA1LKcSg72LwE6M9CVgZxcYzgaTdfoEyE6cmsKITr7MGVrjUQPfBWMHAPZswZqgHCDYlKMsO7",
+	"zxuEESOuwKi3Mb/XmdQX3/32Mw/8zAM/88CAB/I5nbIDdTX9zfU8qzLAhjC0hvqlhjR8ZmN3n2QsJL2I",
+	"eATaHRGkYnfMlUzfLClyrldAFceM5ix/UujZ3vEffzDnyHZYvw9nQTqLQoBSGZThD9BznVIZV91eUDyk",
+	"EKohAvg5JvUK23IXDcFMAU7ccFEVNGnXZL3RM3HFcgXJCW0FPzNeZ6WrxHaH7YUF/9Yb/cMTV38ajBqB",
+	"07RaIYUtm14u0ZzVPHKRx2wFEErPN5MyBV2lF4tUWOvmu0ZEY1RCPMu0UfWCxL71d0lDw1hVDEpj2Sod",
+	"XrTgOSkLmJGFzHjCWbisrqxHQ6uvz2xS8l5IvsGs1ZDbEfxPfsFkFfTGMpboXAqeBBUUws1F71UDl+FX",
+	"TDDlU+XBn3Omc5649rkiqUx85HIlWBlPyw8f/r8AAAD//w==",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
