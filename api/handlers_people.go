@@ -112,3 +112,24 @@ func signatureOut(s *lab.Signature, matches bool) oapi.Signature {
 	}
 	return out
 }
+
+// SearchAudit returns audit rows by person and by record.
+func (s *Server) SearchAudit(ctx context.Context, req oapi.SearchAuditRequestObject) (oapi.SearchAuditResponseObject, error) {
+	f := lab.AuditFilter{}
+	if q := req.Params; q.Person != nil {
+		f.Person = string(*q.Person)
+	}
+	f.RecordType, f.RecordID = deref(req.Params.RecordType), deref(req.Params.RecordID)
+	if req.Params.Limit != nil {
+		f.Limit = *req.Params.Limit
+	}
+	events, err := s.lab.SearchAudit(ctx, f)
+	if err != nil {
+		return nil, err
+	}
+	out := oapi.SearchAudit200JSONResponse{Events: make([]oapi.AuditEvent, 0, len(events))}
+	for _, e := range events {
+		out.Events = append(out.Events, oapi.AuditEvent{At: e.At, Actor: e.Actor, Action: e.Action, Detail: auditText(e)})
+	}
+	return out, nil
+}

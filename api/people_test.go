@@ -2,6 +2,7 @@ package api_test
 
 import (
 	"net/http"
+	"slices"
 	"strings"
 	"testing"
 
@@ -68,6 +69,23 @@ func TestSignaturesThroughTheAPI(t *testing.T) {
 		"login": "quinn", "password": "quinn-password", "reason": "signed the wrong curve"}), http.StatusOK)
 	if w.WithdrawnAt == nil || w.WithdrawalReason == nil || *w.WithdrawalReason != "signed the wrong curve" {
 		t.Errorf("withdrawn = %+v", w)
+	}
+	// The audit trail by person and by record.
+	actions := func(path string) []string {
+		var out []string
+		for _, ev := range decode[oapi.AuditLog](t, e.get(t, e.admin, path), http.StatusOK).Events {
+			out = append(out, ev.Action)
+		}
+		return out
+	}
+	if got := actions("/v1/audit?person=quinn"); !slices.Contains(got, "signature.sign") || !slices.Contains(got, "signature.withdraw") || slices.Contains(got, "run.create") {
+		t.Errorf("quinn's audit rows: %v", got)
+	}
+	if got := actions("/v1/audit?person=ana"); !slices.Contains(got, "run.create") || slices.Contains(got, "signature.sign") {
+		t.Errorf("ana's audit rows: %v", got)
+	}
+	if got := actions("/v1/audit?record_type=curve&record_id=" + id); !slices.Contains(got, "curve.review") || !slices.Contains(got, "signature.sign") {
+		t.Errorf("the curve's audit rows: %v", got)
 	}
 	// Disabling ana refuses her token from the next request on.
 	decode[oapi.Person](t, e.postJSON(t, e.admin, "/v1/people/ana/disable", nil), http.StatusOK)

@@ -108,3 +108,11 @@ func (s *Service) WithdrawSignature(ctx context.Context, p Principal, id string,
 	}
 	return s.people.WithdrawSignature(ctx, id, person, reason, p.Actor())
 }
+
+// SearchAudit returns audit rows by person and record, newest first.
+func (s *Service) SearchAudit(ctx context.Context, f AuditFilter) ([]AuditEvent, error) {
+	if f.Limit <= 0 || f.Limit > MaxAuditLimit {
+		f.Limit = MaxAuditLimit
+	}
+	return s.people.SearchAudit(ctx, f)
+}

@@ -355,3 +355,27 @@ RETURNING `+signatureColumns, id, by.FullName+" ("+by.Login+")", reason))
 	}
 	return sig, nil
 }
+
+// SearchAudit returns audit rows by person and by record, newest first, at
+// most f.Limit: a person's rows are those signed as "person:<login>" and
+// those of every token the person owns.
+func (db *DB) SearchAudit(ctx context.Context, f lab.AuditFilter) ([]lab.AuditEvent, error) {
+	rows, err := db.Pool.Query(ctx, `
+SELECT a.id, a.at, a.actor, a.action, a.entity_type, a.entity_id, a.detail
+FROM audit a
+WHERE ($1 = '' OR a.actor = 'person:' || $1
+       OR a.actor IN (SELECT 'token:' || t.name || ':' || t.id FROM tokens t WHERE t.owner = 'person:' || $1))
+  AND ($2 = '' OR a.entity_type = $2)
+  AND ($3 = '' OR a.entity_id = $3)
+ORDER BY a.id DESC
+LIMIT $4`, f.Person, f.RecordType, f.RecordID, f.Limit)
+	if err != nil {
+		return nil, classify("search audit", err)
+	}
+	out, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.AuditEvent, error) {
+		var e lab.AuditEvent
+		err := row.Scan(&e.ID, &e.At, &e.Actor, &e.Action, &e.EntityType, &e.EntityID, &e.Detail)
+		return e, err
+	})
+	return out, classify("search audit", err)
+}

@@ -2000,6 +2000,14 @@ type UnprocessableEntity = Problem
 // UnsupportedMediaType RFC 9457 problem details.
 type UnsupportedMediaType = Problem
 
+// SearchAuditParams defines parameters for SearchAudit.
+type SearchAuditParams struct {
+	Person     *Login  `form:"person,omitempty" json:"person,omitempty"`
+	RecordType *string `form:"record_type,omitempty" json:"record_type,omitempty"`
+	RecordID   *string `form:"record_id,omitempty" json:"record_id,omitempty"`
+	Limit      *int    `form:"limit,omitempty" json:"limit,omitempty"`
+}
+
 // ListCurvesParams defines parameters for ListCurves.
 type ListCurvesParams struct {
 	Instrument *Identifier  `form:"instrument,omitempty" json:"instrument,omitempty"`
@@ -2145,6 +2153,9 @@ type ServerInterface interface {
 	// GetReadyz Readiness
 	// (GET /readyz)
 	GetReadyz(ctx echo.Context) error
+	// SearchAudit Search the audit trail by person and by record
+	// (GET /v1/audit)
+	SearchAudit(ctx echo.Context, params SearchAuditParams) error
 	// ListCurves Curve history
 	// (GET /v1/curves)
 	ListCurves(ctx echo.Context, params ListCurvesParams) error
@@ -2287,6 +2298,45 @@ func (w *ServerInterfaceWrapper) GetReadyz(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.GetReadyz(ctx)
+	return err
+}
+
+// SearchAudit converts echo context to params.
+func (w *ServerInterfaceWrapper) SearchAudit(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params SearchAuditParams
+	// ------------- Optional query parameter "person" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "person", ctx.QueryParams(), &params.Person, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter person: %s", err))
+	}
+
+	// ------------- Optional query parameter "record_type" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "record_type", ctx.QueryParams(), &params.RecordType, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter record_type: %s", err))
+	}
+
+	// ------------- Optional query parameter "record_id" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "record_id", ctx.QueryParams(), &params.RecordID, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter record_id: %s", err))
+	}
+
+	// ------------- Optional query parameter "limit" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "limit", ctx.QueryParams(), &params.Limit, runtime.BindQueryParameterOptions{Type: "integer", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter limit: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.SearchAudit(ctx, params)
 	return err
 }
 
@@ -3089,6 +3139,7 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.POST(options.BaseURL+"/v1/curves/:id/signatures", wrapper.SignCurve, options.OperationMiddlewares["signCurve"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id/record.pdf", wrapper.GetCurveRecordPDF, options.OperationMiddlewares["getCurveRecordPDF"]...)
 	router.POST(options.BaseURL+"/v1/curves/:id/recalculation", wrapper.RecalculateCurve, options.OperationMiddlewares["recalculateCurve"]...)
+	router.GET(options.BaseURL+"/v1/audit", wrapper.SearchAudit, options.OperationMiddlewares["searchAudit"]...)
 	router.POST(options.BaseURL+"/v1/signatures/:id/withdrawal", wrapper.WithdrawSignature, options.OperationMiddlewares["withdrawSignature"]...)
 
 }
@@ -3292,6 +3343,127 @@ type GetReadyz503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response GetReadyz503ApplicationProblemPlusJSONResponse) VisitGetReadyzResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAuditRequestObject struct {
+	Params SearchAuditParams
+}
+
+type SearchAuditResponseObject interface {
+	VisitSearchAuditResponse(w http.ResponseWriter) error
+}
+
+type SearchAudit200JSONResponse AuditLog
+
+func (response SearchAudit200JSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAudit400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response SearchAudit400ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAudit401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response SearchAudit401ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAudit403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response SearchAudit403ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAudit429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response SearchAudit429ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAudit500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response SearchAudit500ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAudit503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response SearchAudit503ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -8620,6 +8792,9 @@ type StrictServerInterface interface {
 	// GetReadyz Readiness
 	// (GET /readyz)
 	GetReadyz(ctx context.Context, request GetReadyzRequestObject) (GetReadyzResponseObject, error)
+	// SearchAudit Search the audit trail by person and by record
+	// (GET /v1/audit)
+	SearchAudit(ctx context.Context, request SearchAuditRequestObject) (SearchAuditResponseObject, error)
 	// ListCurves Curve history
 	// (GET /v1/curves)
 	ListCurves(ctx context.Context, request ListCurvesRequestObject) (ListCurvesResponseObject, error)
@@ -8822,6 +8997,31 @@ func (sh *strictHandler) GetReadyz(ctx echo.Context) error {
 		return err
 	} else if validResponse, ok := response.(GetReadyzResponseObject); ok {
 		return validResponse.VisitGetReadyzResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// SearchAudit operation middleware
+func (sh *strictHandler) SearchAudit(ctx echo.Context, params SearchAuditParams) error {
+	var request SearchAuditRequestObject
+
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.SearchAudit(ctx.Request().Context(), request.(SearchAuditRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "SearchAudit")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(SearchAuditResponseObject); ok {
+		return validResponse.VisitSearchAuditResponse(ctx.Response())
 	} else if response != nil {
 		return fmt.Errorf("unexpected response type: %T", response)
 	}
@@ -9957,406 +10157,410 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
 	"7L1fcxtJtif2VdKcnRDQUwRBiOpukXEjVk1JM7wjtTSk1H3Xgx5UoioB5GUhE6rMIohpybGO+7L7ui+O",
-	"8Ouu7ed7IxwTDr+13/d+Bs8nceQ5mVlZhQJYoEh1z7UmYloEUJX/8/z9nXN+3EvkfCEFE1rtHf+4N2M0",
+	"8Ouu7ed7IxwTDr+13/d+Bs8nceQ5mVlZhSoQoEh1z7UmYloEUJX/8/z9nXN+3EvkfCEFE1rtHf+4N2M0",
 	"ZTn8ec50vnoy0Sw3n1KmkpwvNJdi73jvgiVSpIpoSZaUazJmE5kzkptXuJj29qK9nL0reM7SvWOdFyza",
 	"U8mMzalpas4FnxfzveN+tKdXC7Z3vMeFZlOW73348CHaW9Cczpm2wzgt8it29nR9DG9mjCTmxweK8NR0",
-	"yc3XC6pne9GeoHNoON06lH+Xs8ne8d6vDspVOMBf1cHbt2dP98x4zlI2X0jNRLL6PVutD+QJSTLOhN5P",
+	"yc3XC6pne9GeoHNoON04lH+Xs8ne8d6vDspVOMBf1cHbt2dP98x4zlI2X0jNRLL6PVutD+QJSTLOhN5P",
 	"ZlIxQS7ZinQoMe8TrgglUylTkswkT1iX6BnVZE4vmfnFLBhn6VCYITKliaITdkIUY0TPGJELllPTywNF",
 	"gj57Q+Fmi/tVzjcY674ZbGXd6fULJqZ6tnd8OPg6MvvgP5tV15rlps0//fHJ/v9I9//c33/cGx3v//Dj",
-	"YXQ4+PrDv9vz26V0zsUUF0conRdzJnTzDnH/O+EpE5pPOMsjQhVZSKVZSpZczwjXiuSFUJt2sezktrt5",
-	"5juHYZ8XYtOZygtxvyfqg3lfLaRQDE74NzQ9x+03nxIptF1NulhkPIEDcLDI5Thj89/8ozID/bFlj6/x",
-	"Ley0OtWXNJvIfM5SolZC0+uILHMppsRsMZE5oeSKZgUjstCKp3gesdljMnfvDsXfX7z6NiKU4JEgyxnL",
-	"GaFEFPMxy8mYZVJMVUSoIIW4FHIpyISzLDWv2BNHZD4UORVTRq64zKhm8Ou7guUr4mkB3ptUMkWE1MQs",
-	"zcrcgw/R3qkUk4wnn3T14KAwJYs8MfRHaaoZmch8zA1VhB/xQncoEimSsyvOliwlNMsZTVcRoUOBP5kr",
-	"IAtNKJlwHQFZwJfhbsDC0zkz98fdbaAxSvMsI1wMzfSnM9216/EchpEy8akXRMtLJkhGk0tF2JXZPpXI",
-	"BSMZh5vOBYmv993V2YffVNzbAypiTgLNnuW5zD/lsF3HhJmee8RMYyzTFVF0pYgU2YoMgTuVDw33CBVp",
-	"ZZMNsfgQ7X0r9XNZiPRTr7uhTKk/juUlYddcaRjZa7rKJE3fSPmC5lP2qQcIK8quE8bs7VAsv2L5A0US",
-	"KSZ8WuQsJRmfcxztBcuveMLeCnpFeUbH2ScfcEo1HVPFSEKFWcmx2WuazFhKhFxGfg48YYbFq1mhtSF/",
-	"qVyKCAhaZwI0dJlzDUyfK2CFVCR29sq0mNozNmYJLRQDPuj75mooDGGlIh2vkOfXxbN9L581TdY+fRBI",
-	"cjDfN1K+pGJlmY76WcjEA+VvT25oJ1dEXrEcVsCehLua7ltBCz2TOf8z+6RX8yVXiotpVLLLyDNBmRuG",
-	"IC9ZSsaM5oa/mVWpTfr777/ff1LomRFdEqrZusASfwNvx8gqqCAx0KiYUK1zPi40I53z56fky68e9bvb",
-	"xfK6bIdLt8hlwpQyl/CZ0FyvPuUKfs+ybN9KKVwsCo1SwDhn9BLE5yJjRE7C63hiV0DFQBYVMdd2KORk",
-	"wkRqriiIHyUFLzJm2eZboYrFQuaapS9ZyukbWI9PLVLAlXigyCn2um9GYS6HoUJS1NQCQpOELbTqgUxr",
-	"+zBDeALfG2JzZpYNxp6m3LxDs9e5aUBzI31OaKZYfSTl20TPcqZmMkvVCawkjCFjE23kQqJBjTFDYmLK",
-	"BQM1ZUKLTJOOmqGwl2XI+qWAB+dMz2QKR3ERjOPHvTFNLkcJzZJRJpcjLTOWmxGMFijYseskKxS/Yi+d",
-	"9ojn15wOqveO91JZGEYRGTUHHzjs96MmZRNlU7PlZZ9zLkYLqtRoktMEl+HHrW23bvnTzGQm51IlLKVK",
+	"YXQ4+PrDv9vz26V0zsUUF0conRdzJnTzDnH/O+EpE5pPOMsjQhVZSKVZSpZczwjXiuSFUG27WHZy2908",
+	"853DsM8L0Xam8kLc74n6YN5XCykUgxP+DU3PcfvNp0QKbVeTLhYZT+AAHCxyOc7Y/Df/qMxAf9yyx9f4",
+	"FnZanepLmk1kPmcpUSuh6XVElrkUU2K2mMicUHJFs4IRWWjFUzyP2Owxmbt3h+LvL159GxFK8EiQ5Yzl",
+	"jFAiivmY5WTMMimmKiJUkEJcCrkUZMJZlppX7IkjMh+KnIopI1dcZlQz+PVdwfIV8bQA700qmSJCamKW",
+	"ZmXuwYdo71SKScaTT7p6cFCYkkWeGPqjNNWMTGQ+5oYqwo94oTsUiRTJ2RVnS5YSmuWMpquI0KHAn8wV",
+	"kIUmlEy4joAs4MtwN2Dh6ZyZ++PuNtAYpXmWES6GZvrTme7a9XgOw0iZ+NQLouUlEySjyaUi7Mpsn0rk",
+	"gpGMw03ngsTX++7q7MNvKu7tARUxJ4Fmz/Jc5p9y2K5jwkzPPWKmMZbpiii6UkSKbEWGwJ3Kh4Z7hIq0",
+	"ssmGWHyI9r6V+rksRPqp191QptQfx/KSsGuuNIzsNV1lkqZvpHxB8yn71AOEFWXXCWP2diiWX7H8gSKJ",
+	"FBM+LXKWkozPOY72guVXPGFvBb2iPKPj7JMPOKWajqliJKHCrOTY7DVNZiwlQi4jPweeMMPi1azQ2pC/",
+	"VC5FBAStMwEausy5BqbPFbBCKhI7e2VaTO0ZG7OEFooBH/R9czUUhrBSkY5XyPPr4tm+l8+aJmufPggk",
+	"OZjvGylfUrGyTEf9LGTigfK3Jze0kysir1gOK2BPwl1N962ghZ7JnP+ZfdKr+ZIrxcU0Ktll5JmgzA1D",
+	"kJcsJWNGc8PfzKrUJv3999/vPyn0zIguCdVsXWCJv4G3Y2QVVJAYaFRMqNY5Hxeakc7581Py5VeP+t3N",
+	"YnldtsOlW+QyYUqZS/hMaK5Xn3IFv2dZtm+lFC4WhUYpYJwzegnic5ExIifhdTyxK6BiIIuKmGs7FHIy",
+	"YSI1VxTEj5KCFxmzbPOtUMViIXPN0pcs5fQNrMenFingSjxQ5BR73TejMJfDUCEpamoBoUnCFlr1QKa1",
+	"fZghPIHvDbE5M8sGY09Tbt6h2evcNKC5kT4nNFOsPpLybaJnOVMzmaXqBFYSxpCxiTZyIdGgxpghMTHl",
+	"goGaMqFFpklHzVDYyzJk/VLAg3OmZzKFo7gIxvHj3pgml6OEZskok8uRlhnLzQhGCxTs2HWSFYpfsZdO",
+	"e8Tza04H1XvHe6ksDKOIjJqDDxz2+1GTsomyqdnyss85F6MFVWo0yWmCy/Djxra3bvnTzGQm51IlLKVK",
 	"84Tr1Yhmi9mNp/EJPPQhQgnHbPqO7xlZbyQnownf9c05FSnVMm/Qp09nzEiQS6NNkwnlWZHjv3jUrlie",
 	"8kSf4FXQM5YrQo3SkV5xJfMV6G2azdVNY4F+vjVaHYzn+gxfOizXl+Y5NTp0Ifi7gtnfzW7ZCbBs51lf",
 	"j3J1v0fBHOWMXbFMWaUfH30UvjdYt7zgi/lIvStojozyI86/LHTGWT5KpLxUo/TeJuv6UboABd+y+Hvp",
 	"Ky+E2nG/r1jOJ5ZjrFOC6rF//+un743WHbyCwh/NU9I5O/3u4PT0uy6Z0xUxtJXQKTUSpZGYhkLIOTca",
 	"CujsPfLUUuFBPyLUSELk7QV59voJufh+/+ujL8lLoMLk636//3QoEprxseUoYfd4xTI6ljlc1QfKkm+i",
 	"mFYgqsmltUbdw4p/8N/I8T+yRJsFLVnTa5nxZLUjZ3sGWqlnaoYvTWSesMjxLVVyrJ1Z1PpUP57h7MJY",
-	"Wry9mU20eLmBSbR4q5FFtHivwiB2p+cVCt5ArluNoEKs27xRIb23orBtKOkOb9XoYos3q1SuxQu70Dgj",
-	"4yKdyzK5ZKm5fc0UT5FOGhCxzeQLRMkbh/kh1Hz+GG5U7Wg0HdiN92bzdYy2EovthKB+Tqoncf0eVvas",
-	"eevXj1F4wbbu4Q9NVNgdj7ojRPGpgIaM7gAL3Lw7ngf0e49CHtDr9/uHDWfsiaDZCvXfrdS+Sq/RYt/e",
-	"LwCCnr7Rim+eqR8o6Mq+37hiRcr1syunR7afQ8kcaqqxUYSXVJFUChYR1pv2SJwXopfkjGqWxhGJwbrc",
-	"m3Bd+UwXi1xehd/kzAyTpXFv3cUTmRHIBhegIbRO90bDL+jm1DTU3E6NilLN9jWfs6ZnU6Ypz5rpx4Lm",
-	"midFRnMVES6SrAC9njoLew6mJaqk6DV6rMJto+Y+4QSjPX/9bO8b9/GFnO64i+zKOVhbcbLgtKyxstoM",
-	"bMtNYz2lhRme2nB40ICtDIXlCgwiaGY4tlYFuMNOyAzstJYsD0WSc81yTskkl3OyKMYZVzOWkmnBU/Ny",
-	"g/hIkyRnKddAaKKhyNm0yMyP0L8VLi9evQbLAlnkLGEpg6Zwc8l4Ba4hmpkrm5IFy5UUQ+H9zxmjiln/",
-	"qFvptdM158LpeuuCAkgRO26v2cJCI4utrvRz8zhZzhhaPxLTOElkkaXE2pXdu7BagsSGF7A0NpsBfcHK",
-	"xHgkY3RLLGer4GiPpcwYFdVrszZnsKk2X6hAHIajYEZkGA/YFE+IKLKsPoMZNUdFgKNwSdE65SbSTPFN",
-	"K2jJR71gu7xXP67MqPmB/cg60MGsjiNKWeK8lN5AAMaBJQe7OpzxwEKwvnhtuEVFxMSdClY7aAxdMY1T",
-	"yZm3POKt06XVLJFzBtepkYIqc2+MBLJhHwFA4J4xWzNnVMGdBbUw3MqP3rBm/leO0J04v0xReUuqsodd",
-	"qq1kt1z3JvQFHADLigLatQAN8ZjEpbRneB6Ke3E0FHEg6plf6lKe+c4LaoZOcSnMd140g0ZyZn65YiMn",
-	"uo7QBB+R2Etq8BZTPC1oNjLSmvnCimQKWplLIbUUPDG/pDmf6LhHgm9Jx6+ZIYL2wHSJ3QQwjTl/spaG",
-	"sJhzk+hsRXwj6GExq7SU+aVhmuB277kOwePkdolQTbiYMqWP4RXBlh5uozK5KHkDXksq4DRfPPUGefBZ",
-	"l/AP8ytFOe6BIoM+mUuliSHxQg+Fk0qwDxWVvu/vmdJTmqcExRS4OIp0FGNDEf/22RtycHV4oHMmUhV3",
-	"e+SsctVJITKmVEg6Mq7AeEGoGgq/qJG9i+Zlb9+GqzIxMoURbgQ57JPaOIcCnKyR6wcbKLeqA0Qdv80Z",
-	"ehdIjWB2rQVFGBG4UTepaiUN+kioUdiDatSCQIXYcEpDdQKeCs5oqTXASNwpMjfVHJfgoloSFe1d75tZ",
-	"7F/RHJwvZjpwdV9y8cJNCb9w84JPL2hy+WryHKYGX/xufX7w/Tc0uTytzBG+Pr/w88TPdrIXdq7P7FTh",
-	"x7NgvvZpnPQ5zhm+e1VOHMcbzB6+eIpLgPATc4TRftZEn5xtLgkfNKIrEix/JYzycIO6dNgP/neDufLU",
-	"iGwgPTWwi6XcVzw1x9g/hfqaub1wIq5opiLS7z0y5KTfe/z48Y2q3OPHjyvK3KPmUelcZi8Mc1A7Wu8u",
-	"Zmw5ozlIo6YRdBQr0jm7eEW++vqr/v6g65ich9SMqWIZF6zXwNOaVK3RjE9nLU0f9o1MLlu+APvPWj68",
-	"pLngYrrLgNwrbUdU4+J2eNV2agOpzDqqLFoj58atOi+yRt5dEncjDnX8R6YJzXoROc246JHTGZv3yOAr",
-	"0jl8/PVhlxw9ftg9JvHh/kDFQ5BDEas2ZispUvLTPw8MH+rYcXdPzKMPVQzOS//MQ3Lx9ITEA9MI0Utp",
-	"WJ9QLCkM5XCPeUYGLcJ5OyHx+f4RvkOCVyLT/FDQsbxi5DfwvPMygyAKYLgl+et/+i8D7Plo/1DFZCKL",
-	"nKz3PBS+68Ow68P+dUw0E5VXrG8VngawnmXBhitXmYtZsr1ozyzHXrQ3wE9mOnvRnhmP+a1/3ZK0m009",
-	"xBbMXw/dXwP/3fmR++vo0D9n2jcno8hVk2Hh1YK+Kxi5ZCvFtGGzSuakY67xl0dFXl7thaEcYgr2vwDa",
-	"+uhw0AraOtr/4Tf/rknKBsDxrh5zglYWlAp65HunLuWMmkGqqs5nH6bmkGdG+kskm0x4wo2yYQTAKpNW",
-	"MSqBibyiOTeybQweTzZf6FWEkh/eaIVGGMFM66YbeM6QvYjEVi8C1TKeGHUysu2CwxWUy6EwyiUcmTpx",
-	"RDIxorpRq7HTLQTog+7pKsvYZvGhpYVv7bckMGRs1c7cc+YdmNNuvoMmv0G4M+sTPxNkLlOW7bN3Bdqv",
-	"ZZ6y/JgYjkNz8sdxPyLjwx8i+8VI5nzKBfkjfPeuoKmRBhL3XETGgx8q/ut2bgprzXjYNPzNQsBpA+s3",
-	"mzhGST01n51i6kWCVtZ20687qk39ut/InOqcX7uOw7WOiPrpXzr/8P/+n//x+3/o/vV//r9/+r8iksul",
-	"MmJT8Byud2XJ7mztti8smlm3XwcL76XK33iREqXlTjcjnaz34ERWkrJpzpgyKzjJGUvlPCLC8BiyCEwI",
-	"gQsKgTqjK5arRnEVoioCfzA+j2TFq4ZmbgBVRrMzPH9w2Ov3+s0mZOscxv62XcNn/sEP0d4ko1PVZFJL",
-	"tCJ0DAAkHIgFh6MJSEhnAWqNBHnO9fOMTpvu/4zRK86URpXspoZAybmY0RwMRDxtFxEQhQEOjcY771Os",
-	"LsVTrjQXicb7q5xKMUE9YlucjTXP3LgyVk43twG052Z7Kvw0ytkV33yorPbtHmq+H4a3V4Z+2AhUMST3",
-	"ppG/hIc+RHui6fpYrlwuGOnAITUqkRTMKeiFAP38xsVcSN7IHxBv4FEcVhqI3HRlTlyvEZnmsliwlIxX",
-	"lhxzgXxU8ZKztAc3maV9bYbVdKorTug65pJPZyDKhFTWcALNcqPIwmA6Beqy1oVb4W7dW1qAwRh107zO",
-	"4aEPgalCpVvoo1/6lF1x62HurA6uu5ETmv/7f12SvyOCLGHeRCU0Y7edAPgobpwBPmWfN3dhJIHE0yx7",
-	"Ndk7/mMbkvFDXQJ9nTMFOyUIFcQTXH/fouDCcfQc5sweQzQ4o+9/1J5o1YTUhihBt/j4wAY2D37EtbP9",
-	"scxbaaqLdrfkAh8N3L/Vabw9ffuSJLJUq0qTTcWk4w04awTSyTujVpTrO/u0p2CWnd34nn3sQ7SHh3mU",
-	"UJFyI1xsJE3+iQeKqETmzBpeY1poiWoHIsvJhF8bAg0Ng78145eMdEAHMacO7aFmiQJxYMPL3dZkDKnR",
-	"qRtlEy1zc5XiiolmG9zv5NJ2jlBRuOSpFV+EOWkZV0aukUQVc/OPcCGtcUBnmoUbP6v2d/h7/8r6RX7j",
-	"4uwYKcyYOmBAEIzY6FKwSdvtwVsMkHFgU+FoRmACRwp/p6OyfSczKRVTQP71jKlS140IzZQsXYaW8+MZ",
-	"oAKMISeEjoFeWW9UeRCtpjxmeB7T2qz8dO98XsFQqbpExgad/5nlcjSjIs3sJq8fLvNIlRgoDPGwYZ5k",
-	"yXJGLtlCW2d5LtMiMdeIiwkXXDN3Pk9Qq3frIhihuVTsZigDxqUiAffS2rpsFlWDaZ3abWmfk63CU928",
-	"+k00xonsTXeyvow1zXqdm1R0yCq7B52o6t4wHXinSaD0etHMWwS85OsEjpK+eq4RVcwdFWUvsEasKVON",
-	"9k8IXxfPpXUH7wL92eCvn0v0p8EhBT2ovTI5poo3AkJW1pmOAoIKkLFckKXMU9VI/G5lmnEGtps5czGf",
-	"03yFKuSC50xt1re50YLoFVKkhBkxurzRDxSxfgpCp6zmI5CCbVzADTJfoJpRpUchfK49XfoufKuZNGUU",
-	"nPoVhCTVhrQ49kR1XPXrN3k61uz8sAPuNEQIgwpWuGlawV5vPOcvuNoV33brA7SDba92lOoChGDXepRs",
-	"sEajldpJfuZRsiiPkNUhzGrB172bj0zTVpg9CEfRZq1Rt9vNTP1KsDVltEzAkHI6FVJpnqgTQoOPAAzz",
-	"R4zrWoQx6QiJ5iCZG1aeS6lBLBjT5HI/cEnbB9Ab2odHnFsaVYRtYWEFZAZotGIGIriZFPSLfNbrPLfU",
-	"6JK6b7eV6RMQthyDfZtfurFjZxZoRheh3nbLpr0hq9HMlNPpbcfsIQawl80A8MN+/6e/dGqbCvbKylJ3",
-	"Dyofb62Po8xw6/mg9NZy3wO89SjsuTnhQLYi7gWFwfvwwi1nivLWJmNO3dQB6s8J6eN9dkftLmBgeLbq",
-	"9yZYSj9Uf4iDbdqwhsHBXLtd0RqBaDyHwYXaSFAvvMWgbksC5Cmk+OiRJyUQCvxoCwwrHqHtJz7xOGQA",
-	"cBpK1wvcr9WnDee1cCIYNqKw2+JqyjG/xlbPXaPBT0/K9oNvz31XfvKWPe4KTq84Be/A01fxqrRrb0J5",
-	"xtJR6fBbx6mXpicMLUV3AUd/7IIqFaLrZO7RY1U7xVrPdUHizuz9u9na79JYfkN00s00c1cL4u2NdOtW",
-	"tluayaxW39KE8OnU7lC/bVBRq+d+i8raRPGe8qxotpW5X8gE4iIg0xI3iiaEkXJhlV3S8XDGv7PkEDE4",
-	"/8//QlLbRPeEHCKPQWNP79Zxoi3gbs9CH+MOMvFNhvNeAxTCBsR8VIjLdpeRE84RQ2JdZpaHqQpV2oFc",
-	"b5b8coaJLVhT3OIGHl++03TA1jxOVEzZCONyIDbrJsW6fLThp4rfpFUSv3AG4fuBgcj2WBtrEB/UfJX8",
-	"wWunkW3YkvYxapW9Wtfv3MmxHA86iMjh/pgqTMSx5lM8scm6mt6sX9/Kpdzup208NlsXMMiCt8MSlhep",
-	"lTWgtl0VP9IjO6fN0UH1Y9zO0vOGXesGCw9a3Rii8G1gf87FJaGajKWeESZSdeIg/mlpUc/kkilE1M/4",
-	"dGb+tggAmjP7qpfqK3fpbsbr3OcAQis7qu14/WI17b1DXjRAQw3/sTAPWgd5qBDlQeIUbArCgjRGyETj",
-	"Y4SG4jmGHDZkLiH6hgoyo9mkDF/UNHMOYBtYUMV9xN0TEk/YcuQvnxpNZD5Sg/iYxIcH6k8D9MaAywad",
-	"XkOBPcOwZ1TZQAK/eDCMiokSAlXKHuIqdLNxkkYOaBpWSyXCLv9T2zTAV753Ddsfn7PluW/+ucwvBqA2",
-	"/I7RTM92vKulwOdmJS/xgKSrlkPGfl/9fs8N4Rxfrp8+21XToQvoaRNc3wa2UhFEr0TO6RvZ7YocZi4n",
-	"is4XiBkIYKhfHrVCof5Qz7Xaj758+KERl1pmWn2dM3Pwb00xAw2sPdu5wRuB2XqsXmx9B0YFNhfihAi5",
-	"rHOSdlJSFb+4VUsonzSaBexJe65QLukFvFlPCXQDY6iHFXvx3o2j8RhaTOWOAmsA23SozBJZERrNEIUc",
-	"j2Uh0jCiNCJxJpcWU2z4R+xRwg32V3y72Q65OTKhvRWyTQqRTdEMOxqnIGDBBjE4KdbNr2mDXlDN8Di0",
-	"y6J2G8Q0HhDgHS5aE+OmzY2A6Dh+5Vj/rpfnVvc8DTTDbW95DbKV4aMuwgbpj7djpdyDjXp3ec/KFhs3",
-	"soRl7nbX3sxC+cEpZBnNpxBra1psEiLWr9FtHAnKDbg6pv/+X5cVER3THaBMAQGe9gGaZQ5n6H6/TaqU",
-	"uikXR9W4yreJ6XrKNEvQrylS8q6gcEysqxM99RFivutIKwUZZReaxEnONU9oNgILREw61CMvutuCnmtb",
-	"5FpJtgf0nV28IoeHXx893B8Q947Lle28hLoe7Hc9Sm7rgqpM7jbDcWsRkdWtR7EpIcfv5NL0sUKAi1tc",
-	"cPQtZyuz4r0N+T2YjSJrzksQzsoqmQRfMsPE+ZlVvW22gUw2uBLPTn9H/jAgfnB4/iLysPfwp7/86z8d",
-	"XNy6s3cbO2s68RE57H9Uh4pP57RZXPMn41//Ce6VOxx4paqwrBjaGQFKwIgPLWM/grfaq5wX5qVv4J1m",
-	"KMS//pPFwwlmiByi0Lp1HFkQpAARLJtwiZ3ljCczbNHeEQQMXzzt9hokB8NtzDau3cdoE91YP+RbMxy8",
-	"kFPeGD2MKU4eKJKZJ4BsBYqE0yKcCrFVg3jp3Qo7iTEuocKNWWvquflKEWSH1DeWpX+4KZapjSf+5hgd",
-	"CMu35lUjg9lXdlBQbB/jVesUSfaVau8byGTQ3JqhuIYTNMOf8ivW3NScXo/gKozolI1msmgCbH/rWaW9",
-	"Nam0MI8Fz2+LodgxWsMm+Vi3l1vXKY5sxMVo4jB164pJe/fYbVxAISJSLlrBl/zbr+zzGxKoBA6jcGtu",
-	"wmW6UdSwj/72ReE13ryWzcekjn8sT3wTIUMicwskGNpV2lMKS81uSpDlmt081lsaUW5BF1GN/EiyWDFL",
-	"3GCurpLMdpw4NKT8sC6uYzxov/f4Ua+BRN1sVW5JioxgmUkxtX7H0GnhKqooTVclUPWECIni0x24HL/+",
-	"6uujG/Ms34qutVeStxC85vRYFKAMRkm1aYAgH9+SQnElxKTM6YqMWRgK5Ex1PtsmHPZuc4qsn4lY2mvT",
-	"TDGbCKO/Xo2X3u1brZICxrDFZEX+joz75DdkfPjTX65PSFwJbrO/2598BHc8FNX3zL+Dn/5y/dO/YHqS",
-	"r4++/HJ/UEv1gy0DJD3oYi/a8+22NIrDnF641oJPr1yL8N0fymY/RHuvoIxAE+j1+5kkufVOlDbwEzCJ",
-	"+zPqKpmtMNwDEsjF/z6u2cHbVhqrGsL/Pcixh4OvmgXZ1yAT74o0vgW2KOVQ+WKD+dP9ehu4klmD+UJv",
-	"SBQ8KbJstFEUymRyuWlMmdMj1r3msm4QvwHQtKYE4Ukqx+baXJ+UH2OwhDdiUnBXbyE5LJhcYHqZdrZ+",
-	"PD03zde2unmkt5MbKlsbXJSBZebBRWnYeLu5W0O24SGbn3Ap87Te0aMvqx31ozaHxdEsoK1K77lwV6g+",
-	"+I7uWyQjACVSwziVRuryQ7M2YoWWo20STFPlhR1OpV+Axj38SCfa36Znaps/KlyREvl8O7/i3QQKbctg",
-	"hu6uagKTQm2CMa/bBkAAbQ9VxOdvBVjEV3dHJ2Jy3tuclHN4s8mGsgE82RSUMqq5WCxSsbIQ9cnV9E83",
-	"gxviWdYGvvNN3GavrwaIoDphBJu0CnRcS3QL8jEmui1DWqzNxhnUzTdL6dJIVLJqkk5M52M+LWShRub9",
-	"+LZ5EUKPXIuTvSFtSgzpx0YwtjgiMeQpKz+ya53TBZbfhLyn8HQmMcep+/TO/CTYFPD18LeEuRntpGy5",
-	"Ou2h6NhMaWF0bOOSTfkVq7gsjsG0NRRB9sxuROJCWLftyHnA495QXEBiHedRtWevFFATmucrGDFsLfi/",
-	"hyIWUo+cEd5sQwwIIBIjtcUDGXdvSindDAVfe4wHLv+tmqB7LnhnVKLCG30wJRpgSRWRY0258EHu8YSz",
-	"LGN5cwj7nFEx2jHcxfkUm6yIUPtVToiHJQWR0BRDOdKb07zUMpWu28aNxHHN56Z9VUk10YiHcJVw3HUK",
-	"okDNFWdKQ1N3EQbD04YYmObEq1cQ4OLipv2i1vckoALrJ2I7TbViw2409W8JBbDd9+8q7q3H9Tw/JY+P",
-	"Hn1FbCU/gt4Zte4Z3uT8xBoM4H2C0sk2ZTH3SRki4BmoSDQnxtqQOeW5BKg9zbgtfBjZ6nsNZQxtNviW",
-	"IgJM9bl5uZFsiTJqcWN1QrKgmKWpAZgND1ixalt5w/gf9q3YvX9m+I2W5F0htU2Vj7Qeqzo86vc3JkNv",
-	"Ctcy/fzuzZvXBB+AxC0V5PKjSpbao35jQifNdVPC0ouZzDVRGCzlqIw7P6aVxqFqW0my7tp7e37m7Ckr",
-	"hy0JG3O0u8jFMfCsS8YWLD+2zxzbExJbUrpZc6zdGvjVzTGIKNninqwcHKNyt7ogb1yee+6KdvY2hkI0",
-	"gTHN+7Ujf0wo+fuLV9+S1/iS4XoS0xbKdBWR+CDjgqmDYdHvP0wE/MPsp0Rmxdx+FQ+FuZunF9+BFBfj",
-	"E9z+emxfp3NmHydYz9fXI0eBYPs6u3ltXdlzl/VqB9DM96HUFJWhzhYXbhfEQcPRUwGli8U+ZCopy8pR",
-	"Ms6ouAwToQXB3ZpBTvRuTTbObUVSTDVQPQofAwm8c5hf43oDi2Vq1+CZuUyb6u8ajr0PVZ5jPEjwhRTZ",
-	"KibLGc9Qng1qOhNf0hlKt+cskRB90YFGFKFCLVlOHvUf2kxMQeXjuGY/Lju3sgN0vIPN2CzG9/Z99/kV",
-	"NFEGmqhNtJymTsBTpDOT2s1LdUlGp/u2jJS2da6NHD6VREsH54J6MvQWqe0sGr3cyIpF5MujbcnAwpVr",
-	"u1C+o+1Ic3RFbDhzYWL+XRNk5DlHa2979WNX60bKJxOWG629am7Yxa7pWEP1qACtXtRpNTL4DTJENdtD",
-	"A+OXeeNPtW3BAfnnay23iVlD3pzQbAPIoBCQFh2zAG0Z6+YnNttdqm+udRYOrrp9kT8xzScRKiRd6OZq",
-	"4otcIv6AZiH5QltIxZV4YiidaQt1ZglwdI01612JDCOdYpxOCXBDT4FLX1MioE9IbMjdjGVpPBQ1KwxI",
-	"1BiyHtkWIlKICdcIB5Q5UcWC5YqlFnxIh6JVtz03DRfU5Uss8WRWJbbB2mCSATv5vWjPjbw1QYEeX1ca",
-	"tF+eh+3a7773zcMO1qjfbteUi1GhtjiRkVgDoTb7KeSy2RWc0elIsUSKdIPzfkJzW/dkzGbcJsJf5NxI",
-	"zhGhPiQfcudAEHMVy2cr5W8oOrG1Tq+PdlsPX+OaTJlGmx7MtFOI3KhWZsUjw7fKIjlgY4pAFPI8O8Js",
-	"cbS7gXbB3qx3/Vpa7AIXZH/fSQP7wLKLPLMi3GFFT7ERRG3jK13fkdvi5utf2njWQ0eDYj0uFrRjEQPO",
-	"5mdtKCg0JjLPEeHY3aVuSTVydH/9t7UdPQ8tBfXsHKWJyaUf/KjEuX6JdvOzwCCL7HY1Hrf4TXZxLSe0",
-	"8WoHZSGhtgC6gHo0rZSAhPQl/nNIPGOQa/F7Hx/fbEhsEeZwM+B9R9nlkos0FO2sl9kqtmyUzIyW1J42",
-	"+1089Q0FXwLnPHVNGuXVLJ0sFLhEdoBZVTjxhsSU5jfLs6wKNoGtsCU+GxK93RA3j5zOj7T9+Jwvx+6L",
-	"31Yu9JdHjYnmd8wEAodytMFsrti77TQVdFfG0hPChVkdSLlptCeMbIcimRUStXnc7TxkZkQ2bx6cP3f5",
-	"6ou8dj7CNAN+RcP5B9lEtrrhKjdtA60vMv2csfQTpOTbscBpSCubku5TNZrLfAO4d2u+vtdUKSNdxIpD",
-	"nRSbnraSuQ8CCFy44/Z9tvOqp+fzA7zBs3nuM4LvGHRm8XopS2z27oVPU5KwumQMMIx0S6KSzbD0oGYu",
-	"INTvoHJvwttUesCVeeqe3iK2fVtJblmFue+Wa9GPLbiENyT3qA0zxMGgluMTd7XmL6bBJ/5l/Hxum/hQ",
-	"fnEbTMpdLP7HZogI8lVo6coleswuholbuEBZiKi3ea8ad6XI2Hdc3s6eYonqBrOWDXzg4kpmV0aZNNyF",
-	"N6aob8PX1vKH4EZvqBPsiNXh/kARW70sIuZo+5/CIpjNmlluS63dAEnyVdkq1Wq3XyBo2k8iKN1aLmrz",
-	"domd62nlhTBkvCyWcweZ526FQWpT58eVvdq1tM8tgocWUmmWkg2FBnbMjHteCKx21nBS3Qw2AK+0YUbm",
-	"ncoCuNGJMOnhPyKlTdRV67py4jn0/vcXr76FqnH28+nFd0Ajb5tor71vusRa7PrODqn55EYA9kfwvN0R",
-	"hudFAC1sMJ2Dq6h9c67qx40A290y5lWy2/mV8+d0c5BSOIdycaIy8/J2Ca4QTg/8lImt140zyD8XLHeZ",
-	"aNpbNLbc8rY3qRHg0noBW1VUvIMcNfeceXJXCOf2lBVrKR03rN5tw9NuwSA/JbUMid+2t3yUysdQNh94",
-	"V7fobSV365fQaNyr8BKCjwPAx62vo6OPDWN6tBuY29POLZSynNDG4+VRxvdM3XbFM4cIzEZZegcL05og",
-	"a00sLRHKJYu8O8tuujEF6+Em1t8ClrnBglbB2u1SZOtmDt6UhCeY3dblvFVepc9ZjXAVK/djV/3KoqQd",
-	"8pmlhE6poSOBqo7FHpZ3rYZtDRO5oZh+I4K36iye0issAgqZThDMDfjaWwPwbxM5WFXtmhU1S70+qu6f",
-	"t1msA55JYlRIX9xvM715sx4N8VFpn1uSqg2BCm/AT+zQywSeMopw/PrVxRtycHV4gILnwY88/XBQPqmw",
-	"nDVA+h3Ev1Mei4YC3F1wbK0FAAwFvGYr3+ZsEmSJQRfjCYlrGGwPG1jdMlSgyQRsLvYDRXgK/nLMXw9x",
-	"EhPGUshTqawhoIVf445CD+48dmC7ilwFZ9yLV+su+OIdu7vWAh9ukwMqdH7eYL7CRbH+RpkThPmYFXfw",
-	"DGilvWHrDgppRojBIXHlp/Xi+DaPpQ8EglyWXLQsmLez360qXYcST7vYjV2iQurXL4wTqToZa9ekYfd3",
-	"S+ISihZ/i6rBtvvVGBG7kzaAvavbKea76rD1JKT3Fv57kUgMU/AY2UKo4xJdDEtzbE65t/0cl3Vs0jkX",
-	"Lc270NF5IZRDHuMX2ME5tg9fgflF+bI28N0T7MiMt8wY18g///WfHJnBVHud80HXZpQkL149JX9X5vUD",
-	"EvLi1R/I35WZ94YiBpTTSKXxMTRz8bT0mroE6NrXMwNgfQciDfVMKjYUvqC4x+dPAEsfI0zf5vGG5tXB",
-	"X//T/4pZOz30ikJ5+6GwoP418H7kBgVxlL4uL58bwU1ZnH6HvStoNixxtz7NnUPZLW297+5Jtdbtcf2F",
-	"aCjKVaBhtQBDGu0ITlx5WBChbE6Z7jEp1zIAd+aFgADbet5zw4IgUzvCzEpgF8vMuq6tXxWnafrfi/Zc",
-	"h5CLovJ8rZpoy0PrT9sTbL/84hvT00Va+e4FdIl5Z6u/uNLkF6k7xYLqIme7Bz1rJvRoTnUyY2ozoBN3",
-	"MZF5+gDKe+ZMaO/AUZpnGeyBy1I/a3Yquu7UjA4efdkQGPW7J/uDR1+Szoxdd334JRVSQD5SQIH7y2MG",
-	"A849PhUoVWyFEaybKVvLWZuzocyp4BNm2GSjSvQ6N8wXheyIGH4Orti3b07R4ifNrIz0A6I5ooxmxZwK",
-	"wHRijlKoGjaTS7XJW2ebrcYlVAqDWagxCBJ8zDOuV435NBY43M0pY7bKz2Y/RhsNR/CrC2Fbl1VhDxvl",
-	"y7dvTttLjL6dEaxtM0mHWvEYo6gd7Cuj4wcKXfR/3lbJdV0P43M2Mq80zmvJ9SzN6ZJm23QP95TYyTZQ",
-	"vtVoHWiOcS23IdyyyCdAqRyB8myFO7S+yuEqrF3yaI3I1K9NoxjhCNotEvko9+4OkqCnnzcZK4PGt477",
-	"46E37SFCO+f0aUUyGilEy2RAWysxVdMV9W/SsPzRdH2X42/cAec4vsOsM7dIu76tStZ9GNFLFfOm6plq",
-	"67J9Mlv62qLegDQKHg6X95Ma1j92kQHvto7ayhkjml3rIM4f8lAmiK8iyYzmNNEs98nqNR1HJOPCGvGM",
-	"MAHxWnRqJCNd5KKWQG/QX08MFmbQ+9NweN3v75v/fm3+8435z6n5zzPz5eHz4fD6q+c//KYxkd4beclu",
-	"i2+4hVG8veC2UZBRRgncgT2AUttgIQBI1QYpgyU50z1yMZNLQUCNMmflhHBtRFprQob4V/CZtDQ1YY+R",
-	"y1tpJ3JjVjzYotvxJLeI7RwM4Z1rAHZKzOlPNVkanaFQrISmnYCcK5yVGj0IVj6jRco10TnlGbgh5FKw",
-	"5pST8wDrNmaZhCJZ8pjEmALdxuQDU3FB+TIncen8Xo/a7w2FzVh7XEtmWYHWPVBY9Qlj/OPS8BEbzdmM",
-	"h2ZSMFRAMZANhmThrPgIV6pAgzyoo/XUfnd2ku8ud171JDYevpyJu+THY6pYZkNht8KLTb/fuIdvCd28",
-	"ochu5suVtEDK2tomhjJJ3axuU0i8cMnYwhz9ORdpUMWTK6LNnEiHkiCQlLgFiRzw2OgGWPIO/Go7ViD2",
-	"6SlaLfBr/3SlHmmr44gNuBKKa9Q1L0TSXK//TV6w0mW75CKVSzJjWRoU5zuM+v2+WxGs45Bh6UGZpUxp",
-	"+wDUHDFr3GyzuHII8V0AQyGw/Eb4Q3NJ33ITguKi/uT7g1cZYLhk7ozdYIWu3pGPAMF/FKDdCPS39FCJ",
-	"5ty3quHQoAG8zFuSsiuOrqKOIH/9T/+FHG7KUeJv2G1LqbAMQ1w3511zPfgrDKVwDGdoIRrA+sGkzYKE",
-	"SPqw7437/zq88NbcajrLJBgKNmEF/BEl1NKlicwyuVQhbts1Am4oI7zWDKfVCtWZbGtKrQ78wvZS/fYs",
-	"6LP6S2A/Xfvpwo+m+sMLicbWgGh9AjTlroGszFD8ZqJZMeYWmTtk/g0ibTETC3qZ+HASlzchpKZzjmni",
-	"4WG1Idc7F6OQW68/cDsIbXMRK8B8uN16YKexLSOnYIaT2qwOE64jc9X9Qb0t0Gf3HK1VHtOc/Uq5qCf/",
-	"rAsvCvasNXy0FrqzlUGFjuyK39rVLvKpa0owcnkKq2egMtcmegTHOLwcRQE9h8pqf/8x3Z882X/+w49f",
-	"f9gPPx7t8vFw0JwX/m0j7OAJAeABeKkSmfq0avPpwYs4InFh//3jYjH/oZ6//uFgm/L9P+z/Tz/8eBg9",
-	"3DCe72jOqUiYLzmwS44vSP6EpYXR1XdlWyOTQiA2qlbgjVw8PSaXRvCMF3LJ8jgaCtW57pK/I0n/p7/M",
-	"6XXnOiLXozkX3T8lhxghDR8xI8qcZlnF1YgwqaGo2EpObBe2ZoFKY9JpLLLVDbsnvyHJ4U9/uUblqCaN",
-	"9NsWdDps+aDLCbCd97rI7f4eNN10qL8rKUItqQLELdpSI2JF5kYy0TJfYS4TR5ps1N5GCFrIbxdUuVz6",
-	"LTmpHd1rfNF+eg7v49h9Dodd+d0ubO4WNtZ7RlS2SnnlcxY2ILNdOqXRomnvf/0UgAL9n/7SmchCpCCB",
-	"WhxA98D+cUsWBA3elMQabE9jmly2TVpd0ohbDmv3dBw3MFB/Mn9vnt9qdgd9qXknDIt9/+un7wk10itL",
-	"yXhVrsMDZWt1V4qstTid5iJuqq/h8vW58dxiLe8Mc1iG7a5JizbJFSzdA+WAGCSRc6YsJLiV0TKQICy1",
-	"vNl+7g5xbbHW7lW4s37R/cUMoot3hq+F5+vTRe9ZiJRPONOoMM4Ns3C5ye2TNQDmmEEuEcNNETjQkO0q",
-	"0JevamS+7cVb2/BKQ+vTucEcsXan11kmF1xzmsWkc3b6HYKvEyk0FwUX05h0Ts23IEBYOheOKOSUtiHr",
-	"ocb327NM3+SZb6ZyYIIma/O6hUv7NgcpnHZ7C011b2/QDKpd7LC1t4xG3FoC3Vl1wiLoOwTRbw8Z+dbi",
-	"82q54NFBQPqR91N4LLJRFG5ZN+5wQ5Kz/hYZ9daM8pM6UNuQfcshNjiysKrbKRUpT12mrB1OUHrFFdsQ",
-	"KgHDZw56mMykVJuyY6BdbmszLhGyqyaz3sicXls0IaIeRxtKtb9pUyyeSBEWmTfnL2W20kjiVisU9GxM",
-	"ltEjSiXiNvZXqVlzlkRadozhX5d8sUBtBtk0JEk8IQxK0Eo9Y/mSq+bk56qYj+hYjZpL2b//9fmz925V",
-	"jES7X+Zo9YRBrYm5TaO75SrcpqZh7W6EpQeD6W48J/4URv5Y293YfG/sAKvr94JRpffRBqvscVI9Eh8e",
-	"XP+p33sUk7/+x//dfFr9aRC70wZ1BJxjarwidCjAWIDiRj0SAyyI1rrQeZLNGU8pYZrQrBeRv+8Nxeks",
-	"l3Oq5TTvkW/IV18dkc6g3x90yeDwUbfnDBhubKbDwwPVue7+9C8Ii6ZDsW7XCIwW139KDu0xJzTJpVJ4",
-	"VxTRkmRy2oFPQ3HxtOsjGM3XlWl0I5v0y8wX33+giFwKcvH0xGYppUNRHis5ccQEPE9w8BDk6W0j9sZa",
-	"lzcqGg/UUMRr5S57dXizAzT3ahQL8d7B4cZ6EoFlRhVzQF+PlcwKyHmZYVpOLCRhL9JQbLxJhM4lOCSl",
-	"guKfGGMjZIUAzWXOhgI8cTOaTZqIVo88g+VAhRNjApXRwsq7qSC/uV2OUfl1HGE9Hn+brZI24deQ2EaV",
-	"YPYqsFsgStEebvzLfh7Avyv//cp+xu8V/Au48HZCor9y32KX/vOZuLp4l+t/qH239nnQ8NJ/qH239nnt",
-	"pcoXADv/IaQHr8pqqjuF/rqzGgQN2JMa2UPua8HyLGsK+0W9Der8t8Bn+rr+IBAFN6HJ/1d3j1VfiCpd",
-	"b6WWldqxd7dEJ4Ta2isZm2giC000vQTch1ez73XBagg0BsEhPiClkUgJxlKFqUMtOdaSjNkmkteh4A/M",
-	"YabmTrq3jMSBb04yOp2ytBsNBTyMo6iGa5A4mPUxwbZxrYDZm4cfKHLxdCjAIEFcbemHx4QaymzjZpay",
-	"bNKQWyMupWyaMzNm8y5jqZyTjtmAx4/Ir20tMbWgQpkpIBoJqKbZra/6XQ/QKYX2QFYfNKZaXj9oHiB+",
-	"O5Xofmp57gbf3aVoTAOY17a8fg3Bb54UOderC5CpYcZjRnOWPyn0rME2YL6WOf8z8Otj8g08i1paAvgq",
-	"h+giAIRSxxWYVgSxSz5ADWrWVULUoC5dOuciPiGKMVtNCVLLcCkeKBJf77vZ7iMgyoYVoVJg5H8YUini",
-	"zrRe7H34AK7SiVyfUlCxB/MnqEqC7UIAu87oWObWcRBYPjzDjozwo4aCVn5eSwYVodvBkCEvBoVyCSnL",
-	"1Rt5L+PJCqLliWLgubE6T4QiIDQVkUUmNaTTvmK5CoPyFdw8m6FdReQPT1zCUtMkFRXQ31AMxRdfoLiA",
-	"m+Ri5alG2av3xRekLJJvhDFzFQodJKVAycgWDWEpScy255y6KGGjW1nqqwjEViD1WBTjjKsZS8m04CkF",
-	"GCdG1fl1x8Uxc9PWNoDhz1MjOxkqKFAqsWLKxavXQMWGYpGzhEGpyxNv0TOk1q0FCJvvCpphfg0LGbQl",
-	"CKzJr0ee0WQ2FLbCgkjD1Ade8s7ZglGtUCfkgsTOXBPD6v7qV+RUiiuj8UuhhmIf462QTWGaALM+StBL",
-	"Nkqg1zfcfXv+/JQ8fPjwMenEqD0dE29uiQ2BJ6bHt29OiVEHCr0odI+U5gU4xJgexAwPgiJzRt6+PXtK",
-	"kJKonhkRFgXEHydccM3I2bNnz/a/enREUFlTPRy2hdhiucZv6bcQkC7gndWJGY6FxmHIWlCtiCtNOtT6",
-	"3+DHisPNnanI8D1SVTbNapfIu1xK3YXkpEZ7jJ3yQIkysxYsgxlZsk+Q6CmbKMLVLcDVV6QTN/GEYyyz",
-	"D/V8CHFWF9+UWaQkk0bRpkYGybKIKIzg1KgGmPVLMCoH3I/Qm2kL1AVzp3Mz2tQG9sHBSWWCtMevGRKs",
-	"MTshScYN4yFqZpbMNIShgXwqJOwYTEbP2IqkEt41s4wIZFkmRsnIiU0RoghNU/sGbj2cQKNeevKnIke4",
-	"VGQvloqcYgdkCQOVzUrACSzP2zE5NELIl0fkycXp2RnJmNYsVxFJ+dRcU8gG0DP0fmT+c2z+sx9HOCWK",
-	"VeVAsaL2VXO+4F3SQbZL4vJ4x90eeSs4JC0ArD6iL0xrAbaf5j5PiLuQhp9hgRYsO2vmBGxlKJAUxgdX",
-	"hzHJpVHjUEDbgQc+sZhjLPUCMtFQuKhZ7OfYDOQ9fiDvQZ57T6Y5Nbv8fije7+/v+/+bB0N2St6He0Xe",
-	"Q15PZFkQ/QjbbbcospWgzI/mTkX4cKX6Sql+ds5OvzsAO7/tNOTa5D15cfbyAnA8U1co9j22j9zc86SA",
-	"F0W1iq+R83eCBsOYDZS2+bKFWYmE2e6rMgJ5bziZ0nQyaewWuVvJ2owyYPMbe6TVCbFh36H1yoa8Vozu",
-	"dgQolJD3pFI03UwbRHkgqab7wjEgHAVsP7QxFM8qsgzJuNLI0PEgIAUwzSO7RaUbiruZ6zoUDaLPMaH2",
-	"hM1kBpaiL74wZEYK9sUX1h4wB6uJaVaztOdmArV6zRBYSti1UVy4RgtKDkTUyCeQWkh5kmaedkw/Y9pw",
-	"J8OhXy2YePL6jDhJ0uWVduh9aq9QOXNDsUsh85j88Yd4KDqunYe9PrqJlb0UuFBg4DG345V5aQCra145",
-	"e2qYqmCJtnZhZYj1Eweei8icZoZhYikipPlwCq7kJUt9TAA56h+eIMvi7lvLaYxQZ1cKBwRPP+yR+GDG",
-	"aKZnfza06wBKleGfc6Zzniib8uRALpigC95b0XkWDwXIHkLaTjqxWzhYiK4jTM/AUuSoEJbLNRspyFpB",
-	"1E4MW4UH9sB++5t/VJCGBWnlUMS2NKShlA1lS2O0TMVWDmmqYnpsmISt6jiWqWVmRnwyI/rycf9wa8VH",
-	"1psCF40P/I07GBxUs8aQTjzcG+7FZqYAO5/JDN/vnmDvpxffkYRlmem2dQ3JiMQithm7x9Sw68VspSDi",
-	"HQDBHRA1CZkxmjJYZvj6sOsgaLajrw6cqBfb4ZQAXTOem4pTuubeFSxfHYPabca2oHp2zFNkfjEO4vgs",
-	"ZfOF1Ewkq/3fsxVkakBPg5WT5lwZ+VZYE0C49NAQCtxcOet/jnzVFtyID+xRe+muB1Eroel1ZIvkGu3J",
-	"8njktgEs0vDRo37/BA8PEi6uhsJIQPu2tXHhaokaSa3IvE/FSD08YaRj9A+bnTMwLzqhZyjMnTPyh7+2",
-	"+EQESS0g1xcv14hcshXIgkeDgeG7j/p9VF8M3RiKIaKjBc3wKg33kDzPmOFtrhpufGLdFkZAnJqB2BNs",
-	"JbVMmiP8rQRqbzqzAjWiy3zdXa4qUoZXqVB4dLJAtbSukYjD5ZOCgRjrkTIg+AHVvgTkLCi9GU+YTeeF",
-	"QWR7RnbNOdM0XwX1cUMlF1Gkyqaw7PV7fZvm1dCoveO9h71+7yHiQWdgD3BUzvw9ZU3ATSiFqcig3w+K",
-	"0S1ymTClgGhl/Ir1yLcgPjnK1/P5obkUZ+ne8d5vmf6d7armCx30+0EyDbDgBBTvH63dBA/qTbYa7AIt",
-	"ArV5wDDNajzC/pqa8ePCDGyCZkCpK8aUveM//gAuprnZhuO9F/yKQQ24aE9DLr0/ljNXWKjS8YyNi/w6",
-	"l+b8s0JhJCu7XrjCOqgP1tf3BB+Bcn/API14a7iPXsr8EqN0bM5eRXReKBsQt7YnL+3IbtwTM66DRUZ5",
-	"bTfqBqu1hbc93MfSB8s29/PYuAkhp964E29mjDhhxetqAZVYUkXGBTdSLdhLWxx729xux94NcoeFDodu",
-	"5Cw3/Ij8hycvX9zH+r8JNdptS4/iU0saYz1Svlwvtb86G5BlWdxn0onIo/7DoShd4PVdIfFcpgwEjxtL",
-	"AxuBsKwNTBx67tiWKgQbjjkKqfPTgLbmBwkj6VTrBZNCaJ6VMBvTsjIkdC7BFILMPGCfQyMG8ISBq5Zr",
-	"xbIJ1MjEOr9xoF1UCgBHhE8IFasIpADIFMVzktHphrt/jrtyj+Q4KA+8fl6he8OEYT1vfT7NWw9vfusC",
-	"l/atoFeUIxph29EuR77lWPs0qBtP9hdfgKX8+Isv6sbxNb1X5k59A8EC864RgV6dCc+NvAT1bxBhGwfB",
-	"JDEYkaw4b0UfQcaroYh5Gv7YI895BtaSRM7HRgwGefHJt09PSGwIGtwRLizmClUcLWObR818F5Gx1DPD",
-	"byoj6JHfs5ViUN6LC2s8WVClrLiA9deGYkGn7IEicVDKK4ZSYe7v0t8OweA43JPaC+aaAhpFirJ+qWna",
-	"SIf4kJmIXNB3BTsBeatqqEwZBqHIHHzsCOaZ09QuCJAS13mEOmG/6Ra94EqfuhIMXl9QEOdvOOUeaAMu",
-	"4cBxNVq13R0KUWQfouZmy7jXu2vT57u8uyZ9pFO7Jitha5vaDCo4tGo0KAxRv6zPaJ5xc9sqJzsq7wPE",
-	"hzWMwdycygDagCbX+39BdUPv/uZt6h0y4X1s36/plBHF/7yxF1BoKx35SNdH/cCRO6j4cRtL5jbJXNX7",
-	"bbVJRzbwam8YmK8H2PpQKRBrfrhHvgcnF4DKDXzvlWAwIYjUAtoBvO+oDe/7hqbO0w2vHN78yltBrUmb",
-	"pfhSC275XOZjnqYM/N5Hg8c3v/FGypdUrOzo1M/EzT3/PsUgHG6U+FXAwy2//iHaWzO4Yh6vNhlWq8wf",
-	"cqDfgwSA1WfBBjHhukfOkEt5t6wUCYtKfmlTpZtbkSLqC78ZWYMAZmaHgHwwAhvJFlvaIB5ixaA1tta0",
-	"MeUjePRtlvz7vV+bdCAskvwLv1L9o5vf+Fbq5xDE8zd6B5+4IhbmiBrNDcANFiMBPiyXhOO+b+cBOIxa",
-	"3dHtd9KZ+xIjiadY09himkr/llNU80JELlkKCPDWqRJ4r8CAtlgwgTrptpv4BKbwi7yOMLQXcqNVAgv4",
-	"fr6Sv4ArGRw9cN8llsi7G2gv06YbuMOV81Xq4bgtpPqoi4cRhIpQoxHjqCOSMwtK90ywFmvqsdgy51OI",
-	"QHIAEyhHDayyzGydcYFeQ8LBNB+7ZkZyEp9g5m3fkOejLn4QvCmargAcZAWPHjl3qMnqMHxacvOG/2S0",
-	"V0hW5ABDFjvaYZbsQFtDAVECELtnNNvYY1Nj0rE+MIioAj3CmpHBctC1BMgvj3UaxQs0D4zs4p9Y05b1",
-	"6bsMB4V4oJxXZyimTIP3B338DiPGdeSdL262D5SHZtEc2QHkmqJqKFSxYLliMPlXLsGUz5AN5BTP6Yxy",
-	"QRIqMO0fBGyQzlH/cTQU4ICKbZSsGtm3rQvsHJJ/dI4Ggwgdn+Mc/nFyUukc9WzKtHfikWxDgeV3zk5/",
-	"R14e9kln0B8MupHLe1wC2C5evXaxvYbYd8GlGoN3a2S3Lj7GMeC2AloKOaENCLH7CLYLwVw0iK94Aw3a",
-	"w6JGCozfZtsEW8bHhGqSMaowlskFlyAqyx42moEhFtuZ0+uR+2U0ySkAObCZuVSaDB6RX3u3nosOdEMZ",
-	"ClI2a45aZk5pdRJuCIkshIZ68OD3sk117Si4wOgcNbpkCx1OowKdDB6MLUbJjKHjUPKKX0dui7qYAM6n",
-	"x8eexlLPRgBLHjGRqpFgLLVppc22wGTMcCt3zSwA2LusE9nWAXAnfManM/PZQrxpnsulNcwC/plqfNt0",
-	"eAImKNOIRRrhWOwIIkC2GcatbQiyg1gsZytM5D9lguUUYE+xfas0aMEid5vkB6Sczxw1/kgJAtjYNzJd",
-	"3Znw4EfmWX4V9QxJE9eEl8NPo0uESQvQdw/9v5DJppz1VM/Cuv4KwKxxjTlCgpvqFKNtrp5/Y4JTv4Xg",
-	"dCrFJLMJno4OW4zpNV1lkqZvpHxB8ynD9x61WQBVLLCc2kuWcvpmhSk+jwaDNi9bT7iRtZ4JzfXqb1U0",
-	"fFaHzAGVAxEL6iug5BWUhnYi47vkLsTFRSZ1b4EBlvdhSKFzBgBCcDZAZ+pqGtuZvf72t4TP6ZRtU8Be",
-	"Z1K//va396mCwRgO7Co0mHTHXFA0Z7VxBsMsPytdP/vNMgcn0LYigqfo3o0e7pTfw5W6KMHEXgz0AWJz",
-	"ml+y1IrIVkOzM7fBzRMOIRtDMaYiRYWBlmWOFlSwDLJPL0FhwavpsVUUMTKAfhoKQecgZGL7PhIniPIx",
-	"rVsv0U3X++K7T3C91dX0N9e3Qnd8vtC/0AuN5+b+L3QJuG9nU6ki+2t3+GwtpAzqiC2IluSwDxBLG/8R",
-	"xLLZCYOqhygTWmqHCGTG21zecuJKKBp1KC6/j0vtDbQrp+t1e2QNhdkjr4PANwjNqUenUbFyIVyujhYE",
-	"z0IRS6ot8F0RdEKbxbBE4aSSm20oQPtSoLghabKVi4miK4cGxeAnqPEmC614akv/2vBAlg4FaoAyR0JG",
-	"KFq7LUDBWsUx1GnCNUbOWtM49gOI16E46j/erNUFi/KL0+vKse2k2PXvZQC2CugGb6y1YS18QE2E0C8b",
-	"W5anLP83R3Y/62C/RK91GDChsKwjxvcG7CXkAi15zBaekrMg/vIuLPXnRmNUgTvMV95EA7J1aXtpsaMr",
-	"fu4HyoPNzBIAHn6zfd+mYbJCJiZtssa5ocgLIcCiB37wyMYOzheQqAfNfBjl4u015ggekxgjHROaxRFE",
-	"9AFE1OdNVNbpbi174HX3YZeds4tXB2fPTsnhV/3Bo6H46f/4qnd42Bug6Z2kOZ9oGx2bsgUEh1oMm3UZ",
-	"uNhkV5sTqqlDbIiRfoM6puWSkY6NYMKoZHgu7vbIBQa8C2SmTVzk3G8++wV7+88rR3ST1x82lispPkvI",
-	"Pz8hCw6Wk5Lx5KIEhhSALklQr9uTN6jgdRcmJXTT9xbp5A48/298xJoNJC3lf2tDevocNV6wMtlLDZ4g",
-	"QHsdOwHXmtWcabhUVCMfshEFRjiIhQIi4BTtiMxlyjJop0yN40lkmeTpAVGJoQARYe8KTKswFEj3kALB",
-	"O1BHUmmeRCihoiMT0r5GrlQzdCXzS/A+gmAbbQgujrzWAI17v5/wCVadgO3w874kJOlgoVcoI2rTHThH",
-	"CxYY/bMULDLrCPULrYEhQFNERMmJXhr1AJxqVdpsQ5CRIg2FrZbrrA9zml/6TOKofXjPLvj/Kt5fw6S3",
-	"ojXO4ZC8fvr8U5FUe8o/2mhoL81nGvqz01Cw+ORcaKhkHGaewT26J5oJz9yBHPhSQqmTkPjXcQZESxLb",
-	"6H1rn3ClUmKkeThTlCZddVdIdqBsPgdsiTVWuiNPoGkgWm4ctgoIav4QEIQ1BNAnS0vPaudoMPA6uhSs",
-	"2yNPKvYFrGyUSTFl+frMIGTg8TGYNSERDTdSqqBZz0jIushFKCJTyBkk5BIJqWqW1Uw7dyGm3b2uj2P7",
-	"mfT8jQ5cHBVLP+vun3X3TwCtq2chuVd0XbVK946ybXSDZfhZXTDzxdINJVRES9kt4VKVcuTHZBFW7R8K",
-	"I8WBRFcV5XyteF/Y/wSlzKDIlisg4UU2TIfk0r1aAY74+C0srL41TOuiXLZfpKpbLdy+QUQr9/6zmPbz",
-	"3/vySDUjaneUzTZY7qKPlseeCAKlDHMpeFKeoeOwlO6UG5kNskxiHjybZxKdLIRqpz/613uIkjX9OVmN",
-	"eqHsgSofPHGSHs3ioYDkw1byUyXJDGWiDlXk9auLN8TKpNaCBpc8t0mSrd8I6McDRXKjnne8SChz8o7u",
-	"215ym0oFf43WfxFD4QbYxQp9BZThgnwsG8oNmz1hqbfVyRxiSBEp7I2YFnyqWCJFum9b8XN6YlOyuKWO",
-	"CCWZTC4h0/tQpBxYY0poAhA/m5/oxKYjZCkUuYLTZ96ypZ/h0SZCaA7rL1OE9NfoZ4IB+v5vpLqfxcnP",
-	"4uSnYSsfz022SJBrBW7uGCKEQmTFSujjphoQBZDSQMebpLfvarVyfoGy21qRog2EpLLwnyW4n/+qfdec",
-	"JrNRmtsCdm2J62kjyVWzam++Z+QsyBBqmh2KDTk/rc40pjqZYfYzI5iEHXVPfOLNoZjTlfdzCOYLQplb",
-	"OjOyUac2KBtrAylyKgEjY5pclj5LK9kZiQ1y3ftNiiMipJF2Msip3K36arm2ee2qCQWPfXaeoYBKkFDy",
-	"ztV+hCZ+/fTmGpHkTGNFHQX2/6GAYoZ//c//rRaBUmbv7oWLPNIyYzm1BfXiCAXEoXDYpp/+edAnv3a1",
-	"vcnbC/Ls9RNy8f3+10dfkpfoEvq63+8/DU281X08WQ82sr4kM/ucp7BGkQs8HYpKLm342gUnuUDUJ2XO",
-	"OlhaV6oS/VbO0GlkS4XagyumWjlfEMrlJHGvr1dTwRKXzmIoqDaHF90phtjbxEgUlh+KYYeNg7juo/1O",
-	"oEiOfQ4jnMCdpGwdFdeLbd6lYEelIWw3GgpwaYGhOJeYLt0F/WAJQHT8AMwMUsfkVCiMj3IIB/DKwcId",
-	"9R8Ti0F1hcERNOYSP6INOCwAPhT2+oyE1CNv8e5G3lpeRsVBAnMRKBPOc1g2Eoa8lU3U4GX22RlVownX",
-	"cbdHjgaDY6j8E655AD5wuxlEEZo+K0cf1noUnFvIkEox9m4DZu27aoXDX5YW0lRl7xMrIk11M1tIEj7q",
-	"XBbaXPTPWspnLeWT4DzAPNSMBigzjbeUoLw0cjMuOsiNfvBj+eGD03EsSbyncKLAD4iZtFOXTbYWeOCS",
-	"4FKNHM9BnodCyGX32JcCs02qgI9pBA8DQYZ3sbvcx0cPRUdI3YZZoDxlHnbcBsEQmF3OpkDDVBTgi42w",
-	"ZjrVrtRggE6GWS0pBiaDa9MWRFQe4aJYGFSOExtxMYKs75A5X4CBThXJrM7xlDMxyixlEODeI9/XqpRh",
-	"+3N6jW2P6JSNZrLIbVLuQIDhyrYDhdRwAXEnjMApGKa7w3T0PXLUP3JlUSAQPWcAvRPgpuCCLGXe7Jt1",
-	"qI8z8VxiueTd2Fopxu/dnOJtc9zoLvnZ1rnJXCIKyRUjOQGHNEJixooJvSkDF9W7JyC79+xAbiu2JQkq",
-	"t/6zFv6LgLvU6kOY22qP5Z2q4DexkLuNs3miSIyOjM3hPHG0bhMr12GCaSrXmEtsiUK8xl7M1YUiW0MR",
-	"//YZdt2SYxolAopCwOq/OHt54asaALAmuXTDS1VjpM63sj5+8FkcDYXHKCLIZrOOUNLDj4lwCanqPekL",
-	"TQP9HO7yWXv4rD20Ifl/KKiRSVZbaN+dxr3Y4j2tdIKawJ9hbtYwsRSKqa5uxXgFiJdN/ouXtut7JADY",
-	"xTbPg53/53Sjdw/+yrKghFr1rITBDe4Ebjq/uzgJQhED7KTm/JHEJkrzJ/WwR15LpTE1OOacgsRQ5mGs",
-	"wSZWQ1GGN5VxGvUz75pGzfE6+KUz6B92T4aCQQblvJw65DeLAhOrq1VdwnprsVxDEeR0K4fOrmmibXqw",
-	"2rhKhBjSkaFwA7WRTxYojKBbrqE4OqBJcqbQeu3LCMvJUASGfqyVG6RXfeDrC6swb7+3pauZXMIUsgzi",
-	"sXrkiTUAlCUgC8HfFbj2XBgBF5XaztFgsMVs+tKl474PMQYb/5kEFzuzBpp15uLwnHGltvMnfochMS4a",
-	"S4G63aVBdvP48No5V0z+cdmiHCOJA0518KM5Nv/W0kV9FsV+gZHHcHk8NYpK71so8mAl/l2ZWVX6smf6",
-	"DoQwa6VEJx3mcwyzdsabSx4hJW2q17CgelZatuCf+7G4PSFqwRI+4UlAzgIa18LuFuTiKkdUJuI/PPrq",
-	"6OuHXx59dUM+/h9+FtpeyqOfjW8///V/Jdxu3P5+W2jajvcaYWIWshoRj3d1gQakg+2C6IQZd1OWMc3S",
-	"7iZd6zUO5D5tLQDi3aZq4aB7n9WmrcfOrKBdqvYYx1vrSA7AjYWnrRgOYPeIUDIpsqwSvEI6UB2/jLYA",
-	"6b4bDUUuM1s+k5YQ+Y4Na6dQx/VJPpViwFMyo2oGJfq2yPZ4nO5JtsfGfyYwg53ZhkvigOp7nwXWzwLr",
-	"rhxrAaH67gztTj4qXOvgR6ADHw4s/2nn9qmJp5a+JFQEkcGGfBAOaDbzp8+OznNXP7xauD64F6XZxPpY",
-	"tA1xA6tKEzl5iqP39ORmCRemfWsR9wW8fb8i5L8NEvL/AxnSHj7DE935u5MrWYhMJpc738jTjNFc2Wgq",
-	"QEICMLQSN8XKELdGXMdb6Przdfp8nT79dcKz9/G3ybrEdgfCNQf0gJXVmoPK6h+lfR+h075yBQKqIeNP",
-	"BAU/sBYQcETBiJaaZuhyJp1YsXdxt14y6bXMMp/daCgqNQEbK4kqjslF0XhyHGZMo7nungxFvZgoodmS",
-	"rhRRTJMOQGltXX0o08cBGmddk8rwcSa0UQMAgjGjajSXOYsdcgzj181Xtu4RWbKcudobJJHzOTg4ekPx",
-	"HGICDGuvjkgxn6AOK0w574cUCTt2zdKcDYUo5mMoCWvzn+BSWvmixK0r2y9AOyjOC5RpxNSDNmP7clhA",
-	"P1CwSOV4BGgys49xBZWPNROu66A7bARK7aeE62OITQFPDGTlA2HIpomCGJQe2u7jiMT2+x5N0/iYxNao",
-	"j8h2BPJ45HvPBZ9EmwGo9snw17gLkbWNQEn/gv8pHAQECuuwgk5Z2sYM3Zzykc0a5R8O8ZlSMLXRbHEO",
-	"DT2DzV1nNrcpmXliDYjlUMwNcI9OGEs3mRbhDu1eU/NOy4oe9sO6oof9GwuL3m8OQrM5z1kzGD8s6fm3",
-	"Uezsb9FFgazFHFuzztUoo0qSFfzmdhiRvGgN+itj59bT40PmTZcXoBOkxyvLjVlKh9hsyJlqOCI6yBcM",
-	"KBS6jmvZTx/4wveVNIL1UKVjQsmgf4j5EVRFjwyIO0SCFS6rAXITVEmvaMZTMi60C2jDkSVU2JwI1k8v",
-	"cwwTM5yTYSWkCOpB+a2F9INZBNbciaHfWL+pi6BBnmUWOhg505wVzcOMXdXU2Mckp8uhSKmmZSE2Pcvl",
-	"UhC6pKseORM4fi4WhSado+vrLvYS5kN11cHGbCVtdhq87+iMPw4x55ANAtATtnSl+Yixh26fyjppJ867",
-	"b5bE1yRw5dwyOmYZlH00CoqEQgidtbpZikwl4ULLMEwSD4teSlsDi6QScJlqBkkPh6ISIXniLglPK9CD",
-	"BWTJhVHBKvzqV78iZymbL6RmIlkNxQUzok3w1f7v2QrStc3ppRmhhkoMik4YFn6H1uGKuUCIocAUGSAJ",
-	"KBQs2ByGf8kWyJJ8qa/BEQH8PkbrWSvoAwBSiCnLwSoLcppL+nNss3n8/cWrb22dzUmZMtdwv7zMmykS",
-	"6YPOSUdJspxxzYha0ARj9ebMHHsrO9kVnVOtWd49wY6G4vTiu0pHwMdIyaR9fqOcLslYpisyXmlmtMp9",
-	"ckHnjFyyVeSK2vtJRTZDqANfGsoIzg08e1984TJODgXxF+qLL8xaIKClnNegf1grng+jACHVIRBiI7YS",
-	"G0wbbu85W2R0Bd3mBYtPiJA2YQmsaInurU7HoYZ0OKdjcjQYVB40C56xICGqm64nAFyQScanM43ztl1D",
-	"lIkZsNkDGwRshU3XguZzBso9rr6A+nNQhFGDexiqFB71H0OxOJz3OdP5av/JRLM87hJuNJWyjtqEC65m",
-	"INJyQPPtQ6is7cycZUucDEkxHTwylMW/PpMZBstcspW/WubodGLNrvVBoq7i7lAYthqAuRVh1wuZa/Nk",
-	"j3wPozxFqWX/zWrBjol/uUykPRQIMcEc1spG9zpdZ+14xkjHjIhddhxHAHcqy82TjmOYSGlil5I2Jh0J",
-	"TJBm3RNb+SGui1OxjcUNugWyOWZOEO0c9ftdbzCFA8oVefvm+f7XpGPoI1bdM1dnH68j5GXlivCpMAew",
-	"i/EpR4df94eiY6c+pyvTx7tC+mKg8XAvPiEvnpstOj1/8ZxkXDCow9ftkRdcQLC3GSscyKFIZjSnCUQO",
-	"KxL/KnY1JnB7wNVjKNwlXyxYekLGGRWX0KYKf7D2WzzkEhRB6Nfqj7hhPXIqs2IulAeNYrVOsUIKdGyW",
-	"5z1J4CHynrgdIe+DOoxyaT5aEch8GIr3+/v7lf+bVuJLLtKYvCcrpsh70FGghRg+wPsxwSd9MIF72PE1",
-	"7oEMG76E14EhlS8jq6u8ijo1Pl2N5Pdvudj9ys8R+et//t9Iv9aCo4blyxDPVUZIuBKOm3+AdnARRhyW",
-	"RMiyl5J51mbqshSsveB+IBOaQBrnYdHvP2SkTzr4CIpih13TkCEtr4JKnYYp53LZI+dOEnCuAWuwhNqS",
-	"FQoPpSDLGBBzX+0uhBInwhThIjoKyaiuNlLdjq4D1gAbqfUQrFfHirDIVMpuaj0EK9btkXO5tJyWY3p/",
-	"w6+99GNawggEsz6Y2B3uQdgvcD97KVzKZrgFICLgg/D+t1aeLRQjcQ/MQylL+JxmWGc3IlQQR9eACAug",
-	"UvFh7xHbfxh3MS0FMXStUFSkyhXplLk6IfG39FtDUM/EJC7zG/JLFvp0sMRczrAZuyKQQxuycnABQozl",
-	"NAnLMmQznqUYIrvCosTKTPKBIuZOe8oKJwtfF65chNm/tLBLmrolRFJDyZxjFgW/hvh7ZMQcAuto5fCS",
-	"vaNiYGQfS3JtPKWjaRYvZogdlkkF3xc8dNR//CXKQrhvmDsBc6LBJrCcxAdASg/gviQCr439hIPDr2I8",
-	"Hs3PQ9IBPDOwxi53uUIpEdex89f//N+wupEXsyEOxhFWJFsyNx254BjzyqN+34rc+DkskNR1OcQNowee",
-	"hqhiW0nXNDXo9yPzBmgscJGxaC6KSahzgMJi7VfMao++RSmyla3CKMU+UhMEfJ742rR0BZLQWGLgK6hM",
-	"iIlDmQr06wcKGk2ZEYrzAJptmrC1kcF6C1FbNgcyoX7Je71e7PYNbYLXsArHQxHH8VD8ysoy2HFAdRcz",
-	"qSVIBfuHpGNZ6zoL7Q6FOd6R05pQoazyA0f6I08TIkdhILs8bGUkuHmeRS8Oo37vUdTv9Q/7gyja+kT/",
-	"8dfNTwyiw17fPDHoP2p+4mE0wCeODg/hCTw97vcIXn7Uj77f7/ePBhseOHz4EB94GA3sgm7AjJwXu2fP",
-	"CCT+37PV3rq5zpwMOGleDASWYVMvWk0Ywlw2mPM8huwuIJLbRxMcrZJDbxpX+fC9j80Hq4NZhZYR/WVk",
-	"9cZA6lIS3z2iessQveRuRicN86mlKtg0ICf9t160V+6FD/eWarwIsEzRnlOMqg2sLwRwfvPl2GjMhkSa",
-	"Oc+5eMHEVM9Cg3JYH+HTIaXOi5uyvdhqQJiLwSaLyH0doI6RNy2tzq02PxRrNpwIvVH2JcsafFkLu2HW",
-	"RRGEMDTZCtYXOgbjAYpkesaV03t8yScbJSMn4G7ywUKoXVeNF0aBbhP1MJYyY1TAYWgXaAGg9sJV5c4L",
-	"8W+yJvdnzNovsG6oVNpcT3uRJ0bI8pc59GAU20JcwyQ5Dc4LOMztvP2bHRiO3jjHM3UGwGMYsRP6bTJo",
-	"b5WwqiyYXb1/Br+r+KdzljAOeWaqBG1DxMZtZJ3zQtx7XbJCbKHVnzE0v4CwXOcPwMN7p1fsroE1FkpT",
-	"+jF8JkUVVW+PxV30yLnLsJizofAFcY2qFDkmzLwVS3kv23q0PQZPcTEULqdgGp9YFInzCaKTDdENPfKk",
-	"ET2Bg3euQswmDxqlHYSLKEPQUDCM0pHpEzjJDHOPcjR6zVgG2PoSTeHt6+chymgonrLc0JZ61lFHaf5w",
-	"GoWeiCKr5PFSQ5GyhBuSFZFavhKor2ghTSNbJ+h4KA57QS/LyhA3JuQ6JrGbVHwyFIOwiUQWWUoqTtba",
-	"4w/rPfr8ktxllq+9cRS+YT0YtnZHCilFw+xepkVreYJsYLW2HvXCOLVm3I1PGFvJYmYNFfY0YE7VwPeA",
-	"4wp7i+oZQuH1SpcdX6V6PQFoztApY47OmCaXYNcEI1eQV3QovgwXp5La7JjEUEFKgfpkJv9V+GyQMc06",
-	"l6g9KhH6lXzSNJxa9xj6tmfI0KsKss5D5+AgQ+sOlCUnxOfxsbQk3swszz0m4pfIM93oNhagg58/s89f",
-	"QA76aiJfRHwW4k6xNracEV7ijwfeWGJQ0h9fu9GZY2zNjg6tJcN2ZEOVxj3V7RGAPHJF3mGuGm5pmkhY",
-	"nY+CoRwJg5zYJMPOWVZahDold5dLgfXpZR7m2/DcooQZWguz1aN95aUAfav9zXlQh90OxUZwENmODTIr",
-	"WiXRXK0JFmZN3XI7wCFyWKjxZOGS3t/vRH9Iuw2sFlyxPJmRTanLrQMEU6DZXjuKsYAk1oUyKH9sz4Ld",
-	"8BJCDIgGrVg2ARah6SUDIdFzkJLvF+JGmFCEEo7NAW22BVwkFj1k+pqZtn1Kbetas0fjxDusCE8rmKAQ",
-	"pQPeAjBaGDnP8ESbNNQxP8PtLMB4RlXYqGXlbmrIiXEpcXab7ct2AT+KjdxDoRgc1c8U0Hgz//LyiI/z",
-	"yksx3cFoPqdX+2xuun/tN039adQyMDy9c3nX9IzNd+HmW/Ri29HBj94n9+GONeNJCUpAchkRmuRSKTMv",
-	"vG8uu5TNPhWBSrumOENizG3Mw3dVLVkNWi9Py4IJOC7MbukYAOb9L8EKG6R0pGIbBfV1svLi7OVFZepr",
-	"jM0BH5wvpxqZ5kd0N/lM7rUIYmVtPqsJv3Q6s3ZLae203pnCUOZiwAvr6pLS7C4qVn+zAvHNVhiEeQRV",
-	"AgPvmq8+DRE3lRqJ4JseirJ2qtJ0pSKAMdq7CoVUMddPOX6biLxewrqBeHxv3ykL1rUJTP2Ie//2rZHm",
-	"7kuc+94vwc+Ufu7Gwn9l8dvPJQA/y2+fkK66q2G0ueCy300pQEw+sXNU/ZlSBZT1z6lI5dzWQe34SI7D",
-	"wddkzLXqlmLJlF8xgcEhypFHluRMe5oHZgGHDRDZ6sQD1gCaB1E7gGQx5NlGgAwFZNaBuhbgmcjk1OjB",
-	"mzXaN2ao95RkB9r+mVRS6PsG7AhsU1RajuwGqBmARcUvvwLCZ3pz//QG7jaheFgCQmNJRct8A/i0RyFg",
-	"srbW9OWcXclLC36Flk4sFLUEDvcPu6Vvz+YhtqnrId/uUAQoaGcVy6Hd1NIrVNkaM+jAcB2p+GRyVYU0",
-	"HK2vFi7L51SJv4iSV2YrPv6a5Eyk6j7LUymbsXVDSapqno3A2X1Fs4INhZyQ2J//oLJIrDK5YLFF4Y6p",
-	"YmGIE5T2BF8FKn8XT6Gl0uEeuzfi0ndaDheVIpHKZdnhoN89gcBWncvMofoVh0pOP/3zgFw8JZ0lzQUX",
-	"Uwxa++mfH8KX6Orogq3EKGxDcTFjyxnNNUngv52zi1fkq6+/6u8P7HS+Z0pPAcoEFv/D/YEqG4/I4f5D",
-	"FQ3FYH+gInK+f6QicrR/iLanw/416aAjvgumXmYWkiIio1xYVQVJKAQfACgzrM91UqsZidbjjHuLz1DE",
-	"voNjMqGZwspaV1xm6EHBjOPgJ3JFKYMc7EPBxZXMwBMDEYcTKMmFcR1LubY5UA4L3Ql+04+HIsb9AM+Q",
-	"KLLMFhrDLrkqF6FHnmA4BDmESIhyVkNhDvYJiXVeiAQTbbhcKiI8EeDHh8QqHUFziPfRbi0MQ4AzCdeK",
-	"WIYeBfIhgGITFq3XUpVLMRR/OCXAyNMiZwpRbpUqqhHJ2bTIzDtNBVWbrXwwmg18ZBtC/W4SDn+KMmJN",
-	"ffjZtoaNwzq99q81gNmfAVjY0I/QHxkRLsBZerUxIsEcjDsA079A32ytd+uq3dy7lnfQ9+/kksypWNXv",
-	"ZFRLbVQloBHG6uuASG8apfu9OQ/LIEzDMqhkYRl84iwseJ82Od5YzgErp5WfceSjwERaksbP2VnuIftf",
-	"zifaSRw2iYm70FCmGuAAVsyoMXOzOVXOG4hVFh19NyXfUOo6WGRS99TV9J7EL+ilgtnCfuNajEPJFiKC",
-	"FkaLFLDLA1LKcSg72LwE6M9CVgZxcYzgaTdfoEyE6cmsKITr7MGVrjUQPfBWMHAPZswZqgHCDYlKMsO7",
-	"zxuEESOuwKi3Mb/XmdQX3/32Mw/8zAM/88CAB/I5nbIDdTX9zfU8qzLAhjC0hvqlhjR8ZmN3n2QsJL2I",
-	"eATaHRGkYnfMlUzfLClyrldAFceM5ix/UujZ3vEffzDnyHZYvw9nQTqLQoBSGZThD9BznVIZV91eUDyk",
-	"EKohAvg5JvUK23IXDcFMAU7ccFEVNGnXZL3RM3HFcgXJCW0FPzNeZ6WrxHaH7YUF/9Yb/cMTV38ajBqB",
-	"07RaIYUtm14u0ZzVPHKRx2wFEErPN5MyBV2lF4tUWOvmu0ZEY1RCPMu0UfWCxL71d0lDw1hVDEpj2Sod",
-	"XrTgOSkLmJGFzHjCWbisrqxHQ6uvz2xS8l5IvsGs1ZDbEfxPfsFkFfTGMpboXAqeBBUUws1F71UDl+FX",
-	"TDDlU+XBn3Omc5649rkiqUx85HIlWBlPyw8f/r8AAAD//w==",
+	"tni7nU1s8XIDk9jirUYWscV7FQaxOz2vUPAGcr3VCCrEeps3KqT3VhR2G0q6w1s1urjFm1Uqt8ULu9A4",
+	"I+MincsyuWSpuX3NFE+RThoQsXbyBaLkjcP8EGo+fww3qnY0mg5s671pv47RRmKxmRDUz0n1JK7fw8qe",
+	"NW/9+jEKL9jGPfyhiQq741F3hCg+FdCQ0R1ggZt3x/OAfu9RyAN6/X7/sOGMPRE0W6H+u5HaV+k1Wuy3",
+	"9wuAoKdvtOKbZ+oHCrqy7zeuWJFy/ezK6ZHbz6FkDjXV2CjCS6pIKgWLCOtNeyTOC9FLckY1S+OIxGBd",
+	"7k24rnymi0Uur8JvcmaGydK4t+7iicwIZIML0BBap3uj4Rd0c2oaam6nRkWpZvuaz1nTsynTlGfN9GNB",
+	"c82TIqO5iggXSVaAXk+dhT0H0xJVUvQaPVbhtlFzn3CC0Z6/frb31n18Iac77iK7cg7WrThZcFrWWFlt",
+	"BrblprGe0sIMT7UcHjRgK0NhuQKDCJoZjq1VAe6wEzIDO60ly0OR5FyznFMyyeWcLIpxxtWMpWRa8NS8",
+	"3CA+0iTJWco1EJpoKHI2LTLzI/RvhcuLV6/BskAWOUtYyqAp3FwyXoFriGbmyqZkwXIlxVB4/3PGqGLW",
+	"P+pWeu10zblwut66oABSxI7ba7aw0Mhiqyv93DxOljOG1o/ENE4SWWQpsXZl9y6sliCx4QUsjc1mQF+w",
+	"MjEeyRjdEsvZKjjaYykzRkX12qzNGWyqzRcqEIfhKJgRGcYDNsUTIoosq89gRs1REeAoXFK0TrmJNFN8",
+	"0wpa8lEv2Czv1Y8rM2p+YD+yDnQwq+OIUpY4L6U3EIBxYMnBrg5nPLAQrC/eNtyiImLiTgWrHTSGrpjG",
+	"qeTMWx7x1unSapbIOYPr1EhBlbk3RgJp2UcAELhnzNbMGVVwZ0EtDLfyozesmf+VI3Qnzi9TVN6Squxh",
+	"l2oj2S3XvQl9AQfAsqKAdi1AQzwmcSntGZ6H4l4cDUUciHrml7qUZ77zgpqhU1wK850XzaCRnJlfrtjI",
+	"ia4jNMFHJPaSGrzFFE8Lmo2MtGa+sCKZglbmUkgtBU/ML2nOJzrukeBb0vFrZoigPTBdYjcBTGPOn6yl",
+	"ISzm3CQ6WxHfCHpYzCotZX5pmCa43XuuQ/A4uV0iVBMupkzpY3hFsKWH26hMLkregNeSCjjNF0+9QR58",
+	"1iX8w/xKUY57oMigT+ZSaWJIvNBD4aQS7ENFpe/7e6b0lOYpQTEFLo4iHcXYUMS/ffaGHFwdHuiciVTF",
+	"3R45q1x1UoiMKRWSjowrMF4QqobCL2pk76J52du34apMjExhhBtBDvukNs6hACdr5PrBBsqt6gBRx29z",
+	"ht4FUiOYXWtBEUYEbtRNqlpJgz4SahT2oBq1IFAhWk5pqE7AU8EZLbUGGIk7ReammuMSXFRLoqK9630z",
+	"i/0rmoPzxUwHru5LLl64KeEXbl7w6QVNLl9NnsPU4Ivfrc8Pvv+GJpenlTnC1+cXfp742U72ws71mZ0q",
+	"/HgWzNc+jZM+xznDd6/KieN4g9nDF09xCRB+Yo4w2s+a6JOzzSXhg0Z0RYLlr4RRHm5Qlw77wf9uMFee",
+	"GpENpKcGdrGU+4qn5hj7p1BfM7cXTsQVzVRE+r1Hhpz0e48fP75RlXv8+HFFmXvUPCqdy+yFYQ5qR+vd",
+	"xYwtZzQHadQ0go5iRTpnF6/IV19/1d8fdB2T85CaMVUs44L1Gnhak6o1mvHpbEvTh30jk8stX4D9Z1s+",
+	"vKS54GK6y4DcK9uOqMbF7fCq7dQGUpl1VFm0Rs6NW3VeZI28uyTuRhzq+I9ME5r1InKacdEjpzM275HB",
+	"V6Rz+Pjrwy45evywe0ziw/2BiocghyJWbcxWUqTkp38eGD7UsePunphHH6oYnJf+mYfk4ukJiQemEaKX",
+	"0rA+oVhSGMrhHvOMDFqE83ZC4vP9I3yHBK9EpvmhoGN5xchv4HnnZQZBFMBwS/LX//RfBtjz0f6hislE",
+	"FjlZ73kofNeHYdeH/euYaCYqr1jfKjwNYD3Lgg1XrjIXs2R70Z5Zjr1ob4CfzHT2oj0zHvNb/3pL0m42",
+	"9RBbMH89dH8N/HfnR+6vo0P/nGnfnIwiV02GhVcL+q5g5JKtFNOGzSqZk465xl8eFXl5tReGcogp2P8C",
+	"aOujw8FW0NbR/g+/+XdNUjYAjnf1mBO0sqBU0CPfO3UpZ9QMUlV1PvswNYc8M9JfItlkwhNulA0jAFaZ",
+	"tIpRCUzkFc25kW1j8Hiy+UKvIpT88EYrNMIIZlo33cBzhuxFJLZ6EaiW8cSok5FtFxyuoFwOhVEu4cjU",
+	"iSOSiRHVjVqNnW4hQB90T1dZxiaLDy0tfGu/JYEhY6N25p4z78CcdvMdNPkNwp1Zn/iZIHOZsmyfvSvQ",
+	"fi3zlOXHxHAcmpM/jvsRGR/+ENkvRjLnUy7IH+G7dwVNjTSQuOciMh78UPFfb+emsNaMh03DbxcCThtY",
+	"v9nEMUrqqfnsFFMvEmxlbTf9uqPa1K/7jcypzvm16zhc64ion/6l8w//7//5H7//h+5f/+f/+6f/KyK5",
+	"XCojNgXP4XpXluzO1m7zwqKZdfN1sPBeqvyNFylRWu50M9LJeg9OZCUpm+aMKbOCk5yxVM4jIgyPIYvA",
+	"hBC4oBCoM7piuWoUVyGqIvAH4/NIVrxqaOYGUGU0O8PzB4e9fq/fbEK2zmHsb9M1fOYf/BDtTTI6VU0m",
+	"tUQrQscAQMKBWHA4moCEdBagrZEgz7l+ntFp0/2fMXrFmdKokt3UECg5FzOag4GIp9tFBERhgEOj8c77",
+	"FKtL8ZQrzUWi8f4qp1JMUI/YFGdjzTM3royV081tAO252Z4KP41ydsXbD5XVvt1DzffD8PbK0A8bgSqG",
+	"5N408pfw0IdoTzRdH8uVywUjHTikRiWSgjkFvRCgn9+4mAvJG/kD4g08isNKA5GbrsyJ6zUi01wWC5aS",
+	"8cqSYy6QjypecpbtwU1maV+bYTWd6ooTuo655NMZiDIhlTWcQLPcKLIwmE6Buqx14Va4W/eWFmAwRt00",
+	"r3N46ENgqlDpBvrolz5lV9x6mDurg+tu5ITm//5fl+TviCBLmDdRCc3YbScAPoobZ4BP2efNXRhJIPE0",
+	"y15N9o7/uA3J+KEugb7OmYKdEoQK4gmuv29RcOE4eg5zZo8hGpzR9z/anmjVhNSGKEG3+PhAC5sHP+La",
+	"2f5Y5q001cV2t+QCHw3cv9VpvD19+5IkslSrSpNNxaTjDThrBNLJO6OtKNd39mlPwSw7u/E9+9iHaA8P",
+	"8yihIuVGuGglTf6JB4qoRObMGl5jWmiJagciy8mEXxsCDQ2DvzXjl4x0QAcxpw7toWaJAnGg5eXu1mQM",
+	"qdGpG2UTLXNzleKKiWYb3O/k0naOUFG45KkVX4Q5aRlXRq6RRBVz849wIa1xQGeahRs/q+3v8Pf+lfWL",
+	"/MbF2TFSmDF1wIAgGLHRpWCTttuDtxgg48CmwtGMwASOFP5OR2X7TmZSKqaA/OsZU6WuGxGaKVm6DC3n",
+	"xzNABRhDTggdA72y3qjyIFpNeczwPKa1Wfnp3vm8gqFSdYmMDTr/M8vlaEZFmtlNXj9c5pEqMVAY4mHD",
+	"PMmS5YxcsoW2zvJcpkVirhEXEy64Zu58nqBW79ZFMEJzqdjNUAaMS0UC7qW1ddksqgbTOrXb0j4nW4Wn",
+	"unn1m2iME9mb7mR9GWua9To3qeiQVXYPOlHVvWE68E6TQOn1opm3CHjJ1wkcJX31XCOqmDsqyl5gjVhT",
+	"phrtnxC+Lp5L6w7eBfrT4q+fS/SnwSEFPWh7ZXJMFW8EhKysMx0FBBUgY7kgS5mnqpH43co04wxsN3Pm",
+	"Yj6n+QpVyAXPmWrXt7nRgugVUqSEGTG6vNEPFLF+CkKnrOYjkIK1LmCLzBeoZlTpUQif254ufRe+1Uya",
+	"MgpO/QpCkmpDWhx7ojqu+vWbPB1rdn7YAXcaIoRBBSvcNK1gr1vP+QuudsW33foA7WDbqx2lugAh2LUe",
+	"JS3WaLRSO8nPPEoW5RGyOoRZLfi6d/ORadoKswfhKLZZa9TtdjNTvxJsTRktEzCknE6FVJon6oTQ4CMA",
+	"w/wR47oWYUw6QqI5SOaGledSahALxjS53A9c0vYB9Ib24RHnlkYVYVNYWAGZARqtmIEIbiYF/SKf9TrP",
+	"LTW6pO7b3cr0CQhbjsG+zS/d2LEzCzSji1Bvu2XT3pDVaGbK6fS2Y/YQA9jLZgD4Yb//0186tU0Fe2Vl",
+	"qbsHlY+31sdRZrj1fFB623LfA7z1KOy5OeFAtiLuBYXB+/DCLWeK8labMadu6gD154T08T67o3YXMDA8",
+	"W/V7EyylH6o/xME2taxhcDDXble0RiAaz2FwoVoJ6oW3GNRtSYA8hRQfPfKkBEKBH22BYcUjtP3EJx6H",
+	"DABOQ+l6gfu1+rThvBZOBMNGFPa2uJpyzK+x1XPXaPDTk7L94Ntz35WfvGWPu4LTK07BO/D0Vbwq27U3",
+	"oTxj6ah0+K3j1EvTE4aWoruAoz92QZUK0XUy9+ixqp1iree6IHFn9v7dbO13aSy/ITrpZpq5qwXx9ka6",
+	"dSvbLc1kVqvf0oTw6dTuUL9tUFGr536DytpE8Z7yrGi2lblfyATiIiDTEjeKJoSRcmGVXdLxcMa/s+QQ",
+	"MTj/z/9CUttE94QcIo9BY0/v1nGiW8DdnoU+xh1k4psM570GKIQNiPmoEJfNLiMnnCOGxLrMLA9TFaq0",
+	"A7lul/xyhoktWFPcYguPL99pOmBrHicqpmyEcTkQm3WTYl0+2vBTxW+yVRK/cAbh+4GByPZYG2sQH9R8",
+	"lfzB204ja9mS7WPUKnu1rt+5k2M5HnQQkcP9MVWYiGPNp3hik3U1vVm/vpVLudlP23hsNi5gkAVvhyUs",
+	"L9JW1oDadlX8SI/snNqjg+rHeDtLzxt2rRssPGh1Y4jCt4H9OReXhGoylnpGmEjViYP4p6VFPZNLphBR",
+	"P+PTmfnbIgBozuyrXqqv3KW7Ga9znwMIreyotuP1i9W09w550QANNfzHwjxoHeShQpQHiVOwKQgL0hgh",
+	"E42PERqK5xhy2JC5hOgbKsiMZpMyfFHTzDmAbWBBFfcRd09IPGHLkb98ajSR+UgN4mMSHx6oPw3QGwMu",
+	"G3R6DQX2DMOeUWUDCfziwTAqJkoIVCl7iKvQzcZJGjmgaVhbKhF2+Z/apgG+8r1r2P74nC3PffPPZX4x",
+	"ALXhd4xmerbjXS0FPjcreYkHJF1tOWTs99Xv99wQzvHl+umzXTUduoCeNsH1bWArFUH0SuScvpHdrshh",
+	"5nKi6HyBmIEAhvrl0VYo1B/quVb70ZcPPzTiUstMq69zZg7+rSlmoIFtz3Zu8EZgth6rF1vfgVGBzYU4",
+	"IUIu65xkOympil/cqCWUTxrNAvZke65QLukFvFlPCXQDY6iHFXvx3o2j8RhaTOWOAmsA23SozBJZERrN",
+	"EIUcj2Uh0jCiNCJxJpcWU2z4R+xRwg32V3y72Q7ZHpmwvRVymxQibdEMOxqnIGDBBjE4KdbNr2mDXlDN",
+	"8Dhsl0XtNohpPCDAO1y0JsZNmxsB0XH8yrH+XS/Pre55GmiGm97yGuRWho+6CBukP96MlXIPNurd5T0r",
+	"W2zcyBKWudtdezML5QenkGU0n0KsrWmxSYhYv0a3cSQoN+DqmP77f11WRHRMd4AyBQR42gdoljmcofv9",
+	"NqlS6qZcHFXjKt8mpusp0yxBv6ZIybuCwjGxrk701EeI+a4jrRRklF1oEic51zyh2QgsEDHpUI+86G4K",
+	"eq5tkWsl2RzQd3bxihwefn30cH9A3DsuV7bzEup6sN/1KLmtC6oyudsMx61FRFa3HkVbQo7fyaXpY4UA",
+	"F7e44OhbzlZmxXst+T2YjSJrzksQzsoqmQRfMsPE+ZlVvW22gUw2uBLPTn9H/jAgfnB4/iLysPfwp7/8",
+	"6z8dXNy6s3etnTWd+Igc9j+qQ8Wnc9osrvmT8a//BPfKHQ68UlVYVgztjAAlYMSHLWM/gre2VzkvzEvf",
+	"wDvNUIh//SeLhxPMEDlEoXXrOLIgSAEiWNpwiZ3ljCczbNHeEQQMXzzt9hokB8NtzDau3ceojW6sH/KN",
+	"GQ5eyClvjB7GFCcPFMnME0C2AkXCaRFOhdioQbz0boWdxBiXUOHGrDX13HylCLJD6hvL0j/cFMu0jSf+",
+	"5hgdCMu35lUjg9lXdlBQbB/j1dYpkuwr1d5byGTQ3JqhuIYTNMOf8ivW3NScXo/gKozolI1msmgCbH/r",
+	"WaW9Nam0MI8Fz2+LodgxWsMm+Vi3l1vXKY5sxMVo4jB164rJ9u6x27iAQkSkXGwFX/Jvv7LPtyRQCRxG",
+	"4dbchMt0o6hhH/3ti8Jr3L6Wzcekjn8sT3wTIUMicwskGNpVtqcUlprdlCDLNds+1lsaUW5BF1GN/Eiy",
+	"WDFL3GCurpLM7ThxaEj5YV1cx3jQfu/xo14DibrZqrwlKTKCZSbF1PodQ6eFq6iiNF2VQNUTIiSKT3fg",
+	"cvz6q6+PbsyzfCu6tr2SvIHgNafHogBlMEqqTQME+fiWFIorISZlTldkzMJQIGeq89k24bB3m1Nk/UzE",
+	"0l6bZorZRBj99Wq89G7fapUUMIYtJivyd2TcJ78h48Of/nJ9QuJKcJv93f7kI7jjoai+Z/4d/PSX65/+",
+	"BdOTfH305Zf7g1qqH2wZIOlBF3vRnm93S6M4zOmFay349Mq1CN/9oWz2Q7T3CsoINIFev59JklvvRGkD",
+	"PwGTuD+jrpLZCsM9IIFc/O/jmh1820pjVUP4vwc59nDwVbMg+xpk4l2RxrfAFqUcKl+0mD/dr7eBK5k1",
+	"mC90S6LgSZFlo1ZRKJPJZduYMqdHrHvNZd0gfgOgaU0JwpNUjs21uT4pP8ZgCW/EpOCu3kJyWDC5wPQy",
+	"29n68fTcNF/bavtIbyc3VLY2uCgDy8yDi9Kw8XZzN4Zsw0M2P+FS5mm9o0dfVjvqR9scFkezgLYqvefC",
+	"XaH64Du6b5GMAJRIDeNUGqnLD83aiBVajjZJME2VF3Y4lX4BGvfwI51of5ueqU3+qHBFSuTz7fyKdxMo",
+	"tCmDGbq7qglMCtUGY163DYAAuj1UEZ+/FWARX90dnYjJeW9zUs7hzSYbSgt4sikoZVRzsVikYmUh6pOr",
+	"6Z9uBjfEs6wNfOebuMleXw0QQXXCCDZpFei4lugW5GNMdFuGtFibjTOom2+W0qWRqGTVJJ2Yzsd8WshC",
+	"jcz78W3zIoQeuS1OdkvalBjSj41gbHFEYshTVn5k1zqnCyy/CXlP4elMYo5T9+md+UmwKeDr4W8JczPa",
+	"SdlyddpD0bGZ0sLo2MYlm/IrVnFZHINpayiC7JndiMSFsG7bkfOAx72huIDEOs6jas9eKaAmNM9XMGLY",
+	"WvB/D0UspB45I7zZhhgQQCRGaosHMu7elFK6GQq+9hgPXP4bNUH3XPDOqESFN/pgSjTAkioix5py4YPc",
+	"4wlnWcby5hD2OaNitGO4i/MpNlkRofarnBAPSwoioSmGcqQ3p3mpZSpdt40bieOaz037qpJqohEP4Srh",
+	"uOsURIGaK86UhqbuIgyGpw0xMM2JV68gwMXFTftFre9JQAXWT8RmmmrFht1o6t8SCmCz799V3FuP63l+",
+	"Sh4fPfqK2Ep+BL0zat0z3Ob8xBoM4H2C0sk2ZTH3SRki4BmoSDQnxmrJnPJcAtSeZtwWPoxs9b2GMoY2",
+	"G/yWIgJM9bl5uZFsiTJqsbU6IVlQzNLUAMyGB6xYtam8YfwP+1bs3j8z/EZL8q6Q2qbKR1qPVR0e9fut",
+	"ydCbwrVMP7978+Y1wQcgcUsFufyokqX2qN+Y0Elz3ZSw9GImc00UBks5KuPOj2mlcajaVpKsu/benp85",
+	"e8rKYUvCxhztLnJxDDzrkrEFy4/tM8f2hMSWlLZrjrVbA7+6OQYRJRvck5WDY1TurS7IG5fnnruinb3W",
+	"UIgmMKZ5v3bkjwklf3/x6lvyGl8yXE9i2kKZriISH2RcMHUwLPr9h4mAf5j9lMismNuv4qEwd/P04juQ",
+	"4mJ8gttfj+3rdM7s4wTr+fp65CgQbF5nN6+NK3vusl7tAJr5PpSaojLU2eLC7YI4aDh6KqB0sdiHTCVl",
+	"WTlKxhkVl2EitCC4WzPIid6tyca5rUiKqQaqR+FjIIF3DvNrXG9gsUztGjwzl2lT/V3DsfehynOMBwm+",
+	"kCJbxWQ54xnKs0FNZ+JLOkPp9pwlEqIvOtCIIlSoJcvJo/5Dm4kpqHwc1+zHZedWdoCOd7AZm8X43r7v",
+	"Pr+CJspAE9VGy2nqBDxFOjOp3bxUl2R0um/LSGlb59rI4VNJtHRwLqgnQ2+R2s6i0cuNrFhEvjzalAws",
+	"XLltF8p3tBlpjq6IljMXJubfNUFGnnO09m6vfuxq3Uj5ZMJyo7VXzQ272DUda6geFaDVizqtRgbfIkNU",
+	"sz00MH6ZN/5U2xYckH++1vI2MWvImxOatYAMCgFp0TEL0Iaxtj/RbnepvrnWWTi46vZF/sQ0n0SokHSh",
+	"m6uJL3KJ+AOaheQLbSEVV+KJoXSmLdSZJcDRNdasdyUyjHSKcTolwA09BS59TYmAPiGxIXczlqXxUNSs",
+	"MCBRY8h6ZFuISCEmXCMcUOZEFQuWK5Za8CEdiq267blpuKAuX2KJJ7MqsQ3WBpMM2MnvRXtu5FsTFOjx",
+	"daVB++V52K797nvfPOxgjfrtdk25GBVqgxMZiTUQarOfQi6bXcEZnY4US6RIW5z3E5rbuidjNuM2Ef4i",
+	"50Zyjgj1IfmQOweCmKtYPlspv6XoxMY6vT7abT18jWsyZRptejDTTiFyo1qZFY8M3yqL5ICNKQJRyPPs",
+	"CLPF0W4L7YK9We/6tbTYBS7I/r6TBvaBZRd5ZkW4w4qeYiOIto2vdH1Hboubr39p41kPHQ2K9bhY0I5F",
+	"DDibn7WhoNCYyDxHhGN3l7ol1cjR/fXf1nb0PLQU1LNzlCYml37woxLn+iXazc8Cgyyy29V43OA32cW1",
+	"nNDGqx2UhYTaAugC6tG0UgIS0pf4zyHxjEGuxe99fHyzIXGLMIebAe87yi6XXKShaGe9zFaxZaNkZrSk",
+	"7Wmz38VT31DwJXDOU9ekUV7N0slCgUtkB5hVhRO3JKY0v1meZVWwCWyFLfHZkOjthrh55HR+pNuPz/ly",
+	"7L74beVCf3nUmGh+x0wgcChHLWZzxd5tpqmguzKWnhAuzOpAyk2jPWFkOxTJrJCo9nFv5yEzI7J58+D8",
+	"uctXX+S18xGmGfArGs4/yCay0Q1XuWkttL7I9HPG0k+Qkm/HAqchrWxKuk/VaC7zFnDvxnx9r6lSRrqI",
+	"FYc6KTY9bSVzHwQQuHDHzfts51VPz+cHeINn89xnBN8x6Mzi9VKW2OzdC5+mJGF1yRhgGOmGRCXtsPSg",
+	"Zi4g1O+gcm/Ct6n0gCvz1D29QWz7tpLcsgpz3y3Xoh9bcAlvSO5RG2aIg0Etxyfu2pq/mAaf+Jfx87lt",
+	"4kP5xW0wKXex+B+bISLIV6GlK5foMbsYJm7hAmUhol77XjXuSpGx77i8nT3FEtUWs5YNfODiSmZXRpk0",
+	"3IU3pqjfhq+t5Q/BjW6pE+yI1eH+QBFbvSwi5mj7n8IimM2aWW5Lrd0ASfJV2SrVajdfIGjaTyIo3Vou",
+	"avN2iZ3raeWFMGS8LJZzB5nnboVB2qbOjyt7tWtpn1sEDy2k0iwlLYUGdsyMe14IrHbWcFLdDFqAV9ow",
+	"I/NOZQHc6ESY9PAfkdIm6mrrunLiOfT+9xevvoWqcfbz6cV3QCNvm2hve990ibXY9Z0dUvPJVgD2R/C8",
+	"3RGG50UALWwwnYOraPvmXNWPGwG2u2XMq2S38yvnz2l7kFI4h3JxojLz8mYJrhBOD/yUia3XjTPIPxcs",
+	"d5lotrdobLjl296kRoDL1gu4VUXFO8hRc8+ZJ3eFcG5OWbGW0rFl9W4bnnYLBvkpqWVI/Da95aNUPoay",
+	"+cC7ukVvI7lbv4RG416FlxB8HAA+3vo6OvrYMKZHu4G5Pe3cQCnLCbUeL48yvmfqtiueOURgNsrSO1iY",
+	"1gRZa2LZEqFcssi7s+ymrSlYD9tY/xawzBYLWgVrt0uRrZs5eFMSnmB2G5fzVnmVPmc1wlWs3I9d9SuL",
+	"knbIZ5YSOqWGjgSqOhZ7WN61GrYxTOSGYvqNCN6qs3hKr7AIKGQ6QTA34GtvDcC/TeRgVbVrVtQs9fqo",
+	"un/eZrEOeCaJUSF9cb92evNmPRrio9I+b0mqWgIV3oCf2KGXCTxlFOH49auLN+Tg6vAABc+DH3n64aB8",
+	"UmE5a4D0O4h/pzwWDQW4u+DYWgsAGAp4zVa+zdkkyBKDLsYTEtcw2B42sLplqECTCdhc7AeK8BT85Zi/",
+	"HuIkJoylkKdSWUPAFn6NOwo9uPPYgc0qchWccS9erbvgi3fs7loLfLhNDqjQ+XmD+QoXxfobZU4Q5mNW",
+	"3MEzoJXtDVt3UEgzQgwOiSs/rRfHt3ksfSAQ5LLkYsuCeTv73arSdSjxbBe7sUtUSP36hXEiVSdj7Zo0",
+	"7P5uSVxC0eJvUTXYdL8aI2J30gawd3U7xXxXHbaehPTewn8vEolhCh4jWwh1XKKLYWmOzSn3tp/jso5N",
+	"OudiS/MudHReCOWQx/gFdnCO7cNXYH5RvqwNfPcEOzLjLTPGNfLPf/0nR2Yw1V7nfNC1GSXJi1dPyd+V",
+	"ef2AhLx49Qfyd2XmvaGIAeU0Uml8DM1cPC29pi4Buvb1zABY34FIQz2Tig2FLyju8fkTwNLHCNO3ebyh",
+	"eXXw1//0v2LWTg+9olDefigsqH8NvB+5QUEcpa/Ly+dGcFMWp99h7wqaDUvcrU9z51B2S1vvu3tSrXV7",
+	"XH8hGopyFWhYLcCQRjuCE1ceFkQom1Ome0zKtQzAnXkhIMC2nvfcsCDI1I4wsxLYxTKzrmvrV8Vpmv73",
+	"oj3XIeSiqDxfqya65aH1p+0Jtl9+8Y3p6SKtfPcCusS8s9VfXGnyi9SdYkF1kbPdg541E3o0pzqZMdUO",
+	"6MRdTGSePoDynjkT2jtwlOZZBnvgstTPmp2Krjs1o4NHXzYERv3uyf7g0ZekM2PXXR9+SYUUkI8UUOD+",
+	"8pjBgHOPTwVKFRthBOtmyq3lrPZsKHMq+IQZNtmoEr3ODfNFITsihp+DK/btm1O0+EkzKyP9gGiOKKNZ",
+	"MacCMJ2YoxSqhs3kUrV562yz1biESmEwCzUGQYKPecb1qjGfxgKH254yZqP8bPZj1Go4gl9dCNu6rAp7",
+	"2Chfvn1zur3E6NsZwdo2k3SoFY8xitrBvjI6fqDQRf/nTZVc1/UwPmcj80rjvJZcz9KcLmm2SfdwT4md",
+	"bAPlW43WgeYY13Ibwi2LfAKUyhEoz1a4Q+urHK7C2iWP1ohM/do0ihGOoN0ikY9y7+4gCXr6eZOxMmh8",
+	"47g/HnqzPURo55w+W5GMRgqxZTKgjZWYqumK+jdpWP5our7L8TfugHMc32HWmVukXd9UJes+jOilinlT",
+	"9Uy1cdk+mS19bVFvQBoFD4fL+0kN6x+7yIB3W0dt5YwRza51EOcPeSgTxFeRZEZzmmiW+2T1mo4jknFh",
+	"jXhGmIB4LTo1kpEuclFLoDforycGCzPo/Wk4vO73981/vzb/+cb859T855n58vD5cHj91fMfftOYSO+N",
+	"vGS3xTfcwii+veDWKsgoowTuwB5AqW2wEACkqkXKYEnOdI9czORSEFCjzFk5IVwbkdaakCH+FXwmW5qa",
+	"sMfI5a20E7kxKx5s0e14klvE7RwM4Z1rAHZKzOlPNVkanaFQrISmnYCcK5yVGj0IVj6jRco10TnlGbgh",
+	"5FKw5pST8wDrNmaZhCJZ8pjEmALdxuQDU3FB+TIncen8Xo/a7w2FzVh7XEtmWYHWPVBY9Qlj/OPS8BEb",
+	"zdmMh2ZSMFRAMZANhmThrPgIV6pAgzyoo/XUfnd2ku8ud171JDYevpyJu+THY6pYZkNhN8KLTb/fuIdv",
+	"Cd28ochu5suVbIGUtbVNDGWSulndppB44ZKxhTn6cy7SoIonV0SbOZEOJUEgKXELEjngsdENsOQd+NV2",
+	"rEDs01NstcCv/dOVeqRbHUdswJVQXKOueSGS5nr9b/KClS7bJRepXJIZy9KgON9h1O/33YpgHYcMSw/K",
+	"LGVK2weg5ohZ42abxZVDiO8CGAqB5TfCH5pL+pabEBQX9SffH7zKAMMlc2fsBit09Y58BAj+owDtRqC/",
+	"pYdKNOe+VQ2HBg3gZd6SlF1xdBV1BPnrf/ov5LAtR4m/YbctpcIyDHFtz7vmevBXGErhGM6whWgA6weT",
+	"NgsSIunDvlv3/3V44a251XSWSTAUtGEF/BEl1NKlicwyuVQhbts1Am4oI7zWDKfVCtWZ3NaUWh34he2l",
+	"+u1Z0Gf1l8B+uvbThR9N9YcXEo2tAdH6BGjKXQNZmaH4zUSzYswtMnfI/BtE2mImFvQy8eEkLm9CSE3n",
+	"HNPEw8OqJdc7F6OQW68/cDsIbXMRK8B8uN16YKexKSOnYIaT2qwOE64jc9X9Qb0t0Gf3HK1VHtOc/Uq5",
+	"qCf/rAsvCvZsa/hoLXRnI4MKHdkVv7WrXeRT15Rg5PIUVs9AZa5N9AiOcXg5igJ6DpXV/v5juj95sv/8",
+	"hx+//rAffjza5ePhoDkv/NtG2METAsAD8FIlMvVp1ebTgxdxROLC/vvHxWL+Qz1//cPBJuX7f9j/n374",
+	"8TB62DKe72jOqUiYLzmwS44vSP6EpYXR1XdlWyOTQiA2qlbgjVw8PSaXRvCMF3LJ8jgaCtW57pK/I0n/",
+	"p7/M6XXnOiLXozkX3T8lhxghDR8xI8qcZlnF1YgwqaGo2EpObBe2ZoFKY9JpLLLVDbsnvyHJ4U9/uUbl",
+	"qCaN9Lct6HS45YMuJ8Bm3usit/t70HTTof6upAi1pAoQt2hLjYgVmRvJRMt8hblMHGmyUXutELSQ3y6o",
+	"crn0t+SkdnSv8UX76Tm8j2P3ORx25Xe7sLlb2FjvGVG5Vcorn7OwAZnt0imNFk17/+unABTo//SXzkQW",
+	"IgUJ1OIAugf2j1uyIGjwpiTWYHsa0+Ry26TVJY245bB2T8dxAwP1J/P35vmNZnfQl5p3wrDY979++p5Q",
+	"I72ylIxX5To8ULZWd6XI2han01zEtvoaLl+fG88t1vLOMIdl2O6atGiTXMHSPVAOiEESOWfKQoK3MloG",
+	"EoSlljfbz90hri3W2r0Kd9Yvur+YQXTxzvC18Hx9uug9C5HyCWcaFca5YRYuN7l9sgbAHDPIJWK4KQIH",
+	"GrJdBfryVY3Mb3vx1ja80tD6dG4wR6zd6XWWyQXXnGYx6Zydfofg60QKzUXBxTQmnVPzLQgQls6FIwo5",
+	"pW3Ieqjx/e1Zpm/yzDdTOTBBk7V53cKlfZuDFE57ewtNdW9v0AyqXeywtbeMRtxYAt1ZdcIi6DsE0W8O",
+	"GfnW4vNqueDRQUD6kfdTeCyyURRuWTfusCXJWX+DjHprRvlJHajbkH3LIVocWVjV7ZSKlKcuU9YOJyi9",
+	"4oq1hErA8JmDHiYzKVVbdgy0y21sxiVCdtVk1huZ02uLJkTU46ilVPubbYrFEynCIvPm/KXMVhpJ3GqF",
+	"gp6NyTJ6RKlE3Mb+KjVrzpJIy44x/OuSLxaozSCbhiSJJ4RBCVqpZyxfctWc/FwV8xEdq1FzKfv3vz5/",
+	"9t6tipFo98scrZ4wqDUxt2l0t1yF29Q0rN2NsPRgMN3Wc+JPYeSPtd2N9ntjB1hdvxeMKr2PNlhlj5Pq",
+	"kfjw4PpP/d6jmPz1P/7v5tPqT4PYnTaoI+AcU+MVoUMBxgIUN+qRGGBBtNaFzpNsznhKCdOEZr2I/H1v",
+	"KE5nuZxTLad5j3xDvvrqiHQG/f6gSwaHj7o9Z8BwYzMdHh6oznX3p39BWDQdinW7RmC0uP5TcmiPOaFJ",
+	"LpXCu6KIliST0w58GoqLp10fwWi+rkyjG9mkX2a++P4DReRSkIunJzZLKR2K8ljJiSMm4HmCg4cgT28b",
+	"sTfWurxR0XighiJeK3fZq8ObHaC5V6NYiPcODjfWkwgsM6qYA/p6rGRWQM7LDNNyYiEJe5GGovUmETqX",
+	"4JCUCop/YoyNkBUCNJc5GwrwxM1oNmkiWj3yDJYDFU6MCVRGCyvvpoL85nY5RuXXcYT1ePxttkrahF9D",
+	"YhtVgtmrwG6BKEV7uPEv+3kA/6789yv7Gb9X8C/gwrcTEv2V+xa79J/PxNXFu1z/Q+27tc+Dhpf+Q+27",
+	"tc9rL1W+ANj5DyE9eFVWU90p9Ned1SBowJ7UyB5yXwuWZ1lT2C/qbVDnfwt8pq/rDwJRcBOa/H9191j1",
+	"hajS9UZqWakde3dLdEKorb2SsYkmstBE00vAfXg1+14XrIZAYxAc4gNSGomUYCxVmDrUkmMtyZi1kbwO",
+	"BX9gDjM1d9K9ZSQOfHOS0emUpd1oKOBhHEU1XIPEwayPCbaNawXM3jz8QJGLp0MBBgniaks/PCbUUGYb",
+	"N7OUZZOG3BpxKWXTnJkxm3cZS+WcdMwGPH5Efm1riakFFcpMAdFIQDXNbn3V73qATim0B7L6oDHV8vpB",
+	"8wDx26lE91PLczf47i5FYxrAvLbl9WsIfvOkyLleXYBMDTMeM5qz/EmhZw22AfO1zPmfgV8fk2/gWdTS",
+	"EsBXOUQXASCUOq7AtCKIXfIBalCzrhKiBnXp0jkX8QlRjNlqSpBahkvxQJH4et/Ndh8BUTasCJUCI//D",
+	"kEoRd6b1Yu/DB3CVTuT6lIKKPZg/QVUSbBcC2HVGxzK3joPA8uEZdmSEHzUUtPLzWjKoCN0Ohgx5MSiU",
+	"S0hZrt7IexlPVhAtTxQDz43VeSIUAaGpiCwyqSGd9hXLVRiUr+Dm2QztKiJ/eOISlpomqaiA/oZiKL74",
+	"AsUF3CQXK081yl69L74gZZF8I4yZq1DoICkFSka2aAhLSWK2PefURQkb3cpSX0UgtgKpx6IYZ1zNWEqm",
+	"BU8pwDgxqs6vOy6OmZu2tgEMf54a2clQQYFSiRVTLl69Bio2FIucJQxKXZ54i54htW4tQNh8V9AM82tY",
+	"yKAtQWBNfj3yjCazobAVFkQapj7wknfOFoxqhTohFyR25poYVvdXvyKnUlwZjV8KNRT7GG+FbArTBJj1",
+	"UYJeslECvb7h7tvz56fk4cOHj0knRu3pmHhzS2wIPDE9vn1zSow6UOhFoXukNC/AIcb0IGZ4EBSZM/L2",
+	"7dlTgpRE9cyIsCgg/jjhgmtGzp49e7b/1aMjgsqa6uGwLcQWyzV+S7+FgHQB76xOzHAsNA5D1oJqRVxp",
+	"0qHW/wY/Vhxu7kxFhu+RqrJpVrtE3uVS6i4kJzXaY+yUB0qUmbVgGczIkn2CRE/ZRBGubgGuviKduIkn",
+	"HGOZfajnQ4izuvimzCIlmTSKNjUySJZFRGEEp0Y1wKxfglE54H6E3kxboC6YO52b0aY2sA8OTioTpD1+",
+	"zZBgjdkJSTJuGA9RM7NkpiEMDeRTIWHHYDJ6xlYklfCumWVEIMsyMUpGTmyKEEVomto3cOvhBBr10pM/",
+	"FTnCpSJ7sVTkFDsgSxiobFYCTmB53o7JoRFCvjwiTy5Oz85IxrRmuYpIyqfmmkI2gJ6h9yPzn2Pzn/04",
+	"wilRrCoHihW1r5rzBe+SDrJdEpfHO+72yFvBIWkBYPURfWFaC7D9NPd5QtyFNPwMC7Rg2VkzJ2ArQ4Gk",
+	"MD64OoxJLo0ahwLaDjzwicUcY6kXkImGwkXNYj/HZiDv8QN5D/LcezLNqdnl90Pxfn9/3//fPBiyU/I+",
+	"3CvyHvJ6IsuC6EfYbrtFka0EZX40dyrChyvVV0r1s3N2+t0B2PltpyHXJu/Ji7OXF4DjmbpCse+xfeTm",
+	"nicFvCiqVXyNnL8TNBjGbKC0zZctzEokzHZflRHIe8PJlKaTSWO3yN1K1maUAZvf2COtTogN+w6tVzbk",
+	"tWJ0tyNAoYS8J5Wi6WbaIMoDSTXdF44B4Shg+6GNoXhWkWVIxpVGho4HASmAaR7ZLSrdUNzNXNehaBB9",
+	"jgm1J2wmM7AUffGFITNSsC++sPaAOVhNTLOapT03E6jVa4bAUsKujeLCNVpQciCiRj6B1ELKkzTztGP6",
+	"GdOGOxkO/WrBxJPXZ8RJki6vtEPvU3uFypkbil0Kmcfkjz/EQ9Fx7Tzs9dFNrOylwIUCA4+5Ha/MSwNY",
+	"XfPK2VPDVAVLtLULK0OsnzjwXETmNDMME0sRIc2HU3AlL1nqYwLIUf/wBFkWd99aTmOEOrtSOCB4+mGP",
+	"xAczRjM9+7OhXQdQqgz/nDOd80TZlCcHcsEEXfDeis6zeChA9hDSdtKJ3cLBQnQdYXoGliJHhbBcrtlI",
+	"QdYKonZi2Co8sAf229/8o4I0LEgrhyK2pSENpWwoWxqjZSq2ckhTFdNjwyRsVcexTC0zM+KTGdGXj/uH",
+	"Gys+st4UuGh84G/cweCgmjWGdOLh3nAvNjMF2PlMZvh+9wR7P734jiQsy0y3W9eQjEgsYpuxe0wNu17M",
+	"Vgoi3gEQ3AFRk5AZoymDZYavD7sOgmY7+urAiXqxHU4J0DXjuak4pWvuXcHy1TGo3WZsC6pnxzxF5hfj",
+	"II7PUjZfSM1Estr/PVtBpgb0NFg5ac6VkW+FNQGESw8NocDNlbP+58hXbcGN+MAetZfuehC1EppeR7ZI",
+	"rtGeLI9HbhvAIg0fPer3T/DwIOHiaiiMBLRvWxsXrpaokdSKzPtUjNTDE0Y6Rv+w2TkD86ITeobC3Dkj",
+	"f/hri09EkNQCcn3xco3IJVuBLHg0GBi++6jfR/XF0I2hGCI6WtAMr9JwD8nzjBne5qrhxifWbWEExKkZ",
+	"iD3BVlLLpDnC30qg9qYzK1AjuszX3eWqImV4lQqFRycLVEvrGok4XD4pGIixHikDgh9Q7UtAzoLSm/GE",
+	"2XReGES2Z2TXnDNN81VQHzdUchFFqmwKy16/17dpXg2N2jvee9jr9x4iHnQG9gBH5czfU9YE3IRSmIoM",
+	"+v2gGN0ilwlTCohWxq9Yj3wL4pOjfD2fH5pLcZbuHe/9lunf2a5qvtBBvx8k0wALTkDx/tHaTfCg3mSr",
+	"wS7QIlCbBwzTrMYj7K+pGT8uzMAmaAaUumJM2Tv+4w/gYpqbbTjee8GvGNSAi/Y05NL7YzlzhYUqHc9o",
+	"XeTXuTTnnxUKI1nZ9cIV1kF9sL6+J/gIlPsD5mnEW8N99FLmlxilY3P2KqLzQtmAuLU9eWlHduOemHEd",
+	"LDLKa7tRN1itLbzt4T6WPli2uZ9H6yaEnLp1J97MGHHCitfVAiqxpIqMC26kWrCXbnHsbXO7HXs3yB0W",
+	"Ohy6kbPc8CPyH568fHEf6/8m1Gg3LT2KT1vSGOuR8uV6qf3V2YAsy+I+k05EHvUfDkXpAq/vConnMmUg",
+	"eNxYGtgIhGVtYOLQc8e2VCHYcMxRSJ2fBrQ1P0gYSadaL5gUQvOshNmYlpUhoXMJphBk5gH7HBoxgCcM",
+	"XLVcK5ZNoEYm1vmNA+2iUgA4InxCqFhFIAVApiiek4xOW+7+Oe7KPZLjoDzw+nmF7g0ThvW89fk0bz28",
+	"+a0LXNq3gl5RjmiETUe7HPmGY311eACaaOvB/uILMJQff/HFmporc6etgRzxBDTaXC5VRAR6ciY8BxlJ",
+	"k7lR5tGTE5POYb/f7/ZcRHZMMELNSGigYzobZ8rTY2jQpnhygeH2Z3Ob4Fc5sQcZrRsieEYuhYKD5/Pe",
+	"WK3H575xvYNIg98ORQcFYZv+1V1bnnZDk+fbN6elAJZIAcCWCReuqnv1tF4wmiczWKQwuFNBQL1hSXsg",
+	"drvI/uM9nIFzHdAtfTwfoubWqpl/yiYDZ05Q8rp03mxsDXNfNrU1aEzr0twYnIp6Q40+tabypT/c4+WH",
+	"3XohW3lVDqGOH6K9o21u/Tc0dT4+eOXw5lfeCmqNeSzFl7agE89lPuZpysDjdzR4fPMbb6R8ScXKjk79",
+	"THTMUy68KvW0D4aTBDd/vLK3NSBvmDpl74dob80W5ePY1rNNOkJYlk25kRJWvYQ3UUZMQFkjilAIDEMN",
+	"4iCqLgZrurVrWB1QkPFqKGJDq8ofe+Q5z8BsnMj5mAuL83ny7dMTEhvJDoQFLiz4FKmelrFNKGm+i8hY",
+	"6pkRvCsj6JHfs5ViUOeQC2tFXlBlia8tRDkUCzplDxSJg5qGMdRMdH+XwCPIioHDPam9YOQVgOVJURZy",
+	"Nk0bNRkfMhORC/quYCdApasem5RhNJ7MAWyEqMY5Te2CgEzlOo/QONZvItAvuNKnrhbNFvS5Era/HT0J",
+	"4bRt1LBMAHB3bfrEv3fXpA/53K7JSvxuW5tBKZutGg0q5NQv6zOaZ9zctsrJjsr7AIGyDWMwN6cygG3Q",
+	"4+v9v6C6oXd/89p6h5SgH9v3azplRPE/t/ayznB9yP+jfoBoGdzIfKMm5bN6v61ZzZENvNotA/OFUbc+",
+	"VEretwwAJxciNhqEgFeCwYQgZBVox2dx4M7FgVOMRuRKSzgsjttbft3G7bdLNV1l/lAM4h4kACzDDcbY",
+	"Cdc9coZcyuNTpEhYVPJLWzPC3IoU4a/4zchaRrFEBWQmAW+YEYSwpRY9GUunrbG1po0pH8Gjb8uF3O/9",
+	"ahOwsVr8L/xK9Y9ufuNbqZ9DNOPf6B184qr5mCNqdGFAeVmwGDjzXTai+76dd2avcH4Po0OwFIu7W3Bn",
+	"6eh3qn9eiMhljQIB3nqXQ/2EK0IXCybQOLfpJrZYAX4J1/EmlRcrmX++kr+AKxkcPcAxJJbIuxtoL9NH",
+	"acN45azcaqMEFlJ91MXDUGpFqNGIcdQRyZmNzvFMsBZ074NSZM6nEIrpkHZQlx9YZZniP+MC4ROEg48y",
+	"ds2M5CQ+QROhb8jzURdIDW5lTVeAkrSCR4+cO/h4dRi+PoN5w38y2itkbXPISQui7zBLdqCtoYBwKQhi",
+	"Nppt7EH6MelYMACEloIeYf1pYDnoWgLkl8d6z+MFmgdGdvFPrGnUgptcqpdCPFDOvT0UU6bBDY5gJweW",
+	"5TryXmg32wfKY1RpjuwAku5RNRSqWLBcMZj8K5dpz5cKAHKK53RGuSAJFZj/FCLXSOeo/zgaCvDExzZd",
+	"gBrZty0W4ByyIHWOBoMIESDjHP5xclKJEvFsyrR34iG9Q4F1yM5Of0deHvZJZ9AfDLqRSwBfInkvXr12",
+	"SQ4Mse8CtiQGN//Ibl18jGPAbQXYKHJCGxln9xFsF4K5sDhf+gsatIdFjRR4Ac22CbaMjwnVJGNUOaM0",
+	"RtkhPNUeNpqBRwrbmdPrkftlNMkpINqwGTC8Dx6RX3t8gwuTdkMZClI2a45aZk5pdRJuCIkshJkmzsk1",
+	"1bWj4ALDFNXoki10OI0Khjx4MLZgTTOGjgsXUvw6clvUxUyYvk4I9jSWejaC+IwRE6kaCcZSm1/fbAtM",
+	"xgy3ctfMAoC9y6JpbEEUd8JnfDozn22sC83BtQCXBQJBqMa3TYcnYIIyjVjIJY7FjiACiK9h3NrmYnBY",
+	"s+VshRVNpkywnAL+M7ZvlQYtWORuk/yAlPOZo8YfKUEAG/tGpqs7Ex78yDzLr4Z/QPbYNeHl8NPoEmH2",
+	"FgQxQf8vZNJWvIPqWZkbC1+OAC0YMkfI9FWdYrTJ5/1vTHDqbyE4nUoxyWymu6PDLcb0mq4ySdM3Ur6g",
+	"+ZThe4+2WQBVLLCu5EuWcvpmhbmOjwaDbV62kCAjaz0TmuvV36po+KyOHUZfKQOljTrJK6iR70TGd8ld",
+	"iIuLTOreAiPN78OQQucMkNTgbIDO1NU0tjN7/e1vCZ/TKdukgL3OpH797W/vUwWDMRzYVWgw6Y65oGjO",
+	"2gYVA7P8rHT97DfLHJxA24oInqJ7N3q4U34PV+qijKrwYqCPlJ3T/JKlVkS2Gpqduc3yMOEQuzYUYypS",
+	"VBhoWe9tQQXLIA3/EhQWvJoeZEoRLAgw0KEQdA5CJrbvQxKDcEfTuvUS3XS9L777BNdbXU1/c30rmNvn",
+	"C/0LvdB4bu7/QpeRR9vZVKohTrU7fLYWWwsFFRdES3LYB6y5DYQLgnrthEHVQ7gdLbVDjOjA21zecuJq",
+	"yRp1KC6/j0vtDbQrp+t1e2QNjt4jr4MIYIhRrIfpUrFysayuoCBkEYBqvlTbCCBF0AltFsMShZNKksqh",
+	"AO1LgeKGpMmWcCeKrhwsHqNAodilLLTiqa2BbuOkWToUqAHKHAkZoWjttgAFaxXHmM8J15hCwJrGsR+A",
+	"/g/FUf9xu1YXLMovTq8rx7aTYte/lwHYcsgt3lhrw1r4yMIIMbA2yDZPWf5vjux+1sF+iV7rMHJMYX1b",
+	"THQQAtaCS78lj9nAU3IWBKLfhaX+3GiMKnCH+RLEaEC2Lm0vLXZ0xc/9QHmwmVkCCAxqt+/bfHRWyMTs",
+	"ddY4NxR5IQRY9MAPHtkg6vkCMpahmQ/D/by9xhzBYxJjyHdCsziC0GbAyvsEsso63a1lD7zuPv68c3bx",
+	"6uDs2Sk5/Ko/eDQUP/0fX/UOD3sDNL2TNOcTbdMEpGwBUfIWw2ZdBi5JgytSTEUKEVIo/QYFncslIx0b",
+	"yonpGeC5uNsjF5j5QyAzbeIi537z2S/Y239eOaJtXn/YWK6k+Cwh//yELDhYTkrGk4sSGFIAuvRU4I7x",
+	"uJ60yTztLdLJHXj+3/jQXRtRX8r/1ob09DlqvGBlspcaPEGA9jp2Aq41qznTcKmoRj52LQqMcBAUCkTA",
+	"KdoRmcuUZdBOmSPMk8gy290DohJDASLC3hWYX2YokO4hBYJ3oKCu0jyJUEJFRybkv45czXroSuaX4H0E",
+	"wTZqybIQea0BGvd+P+EzTTsB2wUS+dq4pIMVr6Gess374hwtWGn5z1KwyKwjFHK1BoYATRERJSd6adQD",
+	"cKpVabPNxYAUaShs2XBnfZjT/NKXVEDtw3t2wf9X8f4aJr0RrXEOh+T10+efiqTaU/7RRkN7aT7T0J+d",
+	"hoLFJ+dCQ0n3MAXXvcQwOJoJz9yBHPhSQs2nkPjXcQZESxLbNCbWPuFqRsVI83CmKE26MteQ9cXHckFL",
+	"rLHkJ3kCTQPRcuOw5ZBQ84fISCymgj5ZWnpWO0eDgdfRpWDdHnlSsS9gibdMiinL12cGIQOPj8GsCRm5",
+	"uJFSBc16RkLWRS5CEZlC8jQhl0hIVbOsZtq5CzHt7nV9HNvPpOe3OnBxVCz9rLt/1t0/AbSuno7pXtF1",
+	"XmpSt5Btoxssw8/qgtnSJhwVhhIqoqXslnCpORV8wpR2QV+GZTFM/hcNBQS8GomuKsrBVyDPESvOnaCU",
+	"GVQbdJV0vMiGeeFc3msrwBEfv4UBvxvDtC7KZftFqrp+fG3BI+DL9pP4LKb9AgJP/W40I2p3lM1aLHfR",
+	"R8tjTwSBmPVcCp6UZ+g4jI6fciOzQbpdTAhqE+6ik4VQ7fRH/3oPUbKmPyerUS+UPVDlgydO0qNZPBSQ",
+	"hd1KfqokmaFM1KGKvH518YZYmdRa0OCS5zZbvPUbAf14oEhu1POOFwllTt7RfdtLbnNK4a/R+i9iKNwA",
+	"u1iqtIB6hJCYqqXuutkTlnpbncwhhhSRwt6IacGnGO6/b1vxc3pic1O5pY4IJZlMLqHkxVCkHFhjSmgC",
+	"ED+bqO3E5mVlKVT7g9Nn3rI18OHRxoQCfCp+mSKkv0Y/EwzQ938j1f0sTn4WJz8NW/l4brJBglyr9HXH",
+	"ECEUIitWQh831YAogJQGOm6T3r6rFQ37Bcpua9XaWghJZeE/S3A//1X7rjlfcKM0twHsuiWuZxtJrlpe",
+	"oP2ekbMgVbJpdihakh9bnWlMdTLDNJBGMAk76p74DMRDMacr7+cQzFfGM7d0ZmSjTm1QNtYGcoVVAkbG",
+	"NLksfZZWsjMSGxT98JsUR0RII+1kkFy+W/XVcm0TfFYzqx77NGVDASVxofanK4ILTfz66c3FcsmZxtJi",
+	"Cuz/QwFVXf/6n/9bLQKlLGPQCxd5pGXGcmori8YRCohD4bBNP/3zoE9+TSYS8/++vSDPXj8hF9/vf330",
+	"JXmJLqGv+/3+09DEW93Hk/VgI+tLMrPPeQprFLnA06GoFBWAr11wkgtEfVIm74SldTV70W/lDJ1GtlSo",
+	"Pbiq0pXzBaFcThL3+no1JzZx6SyGgmpzeNGdYoi9zRBHYfm5mFYbB3HdR/udQLUw+xxGOIE7SdmCUq4X",
+	"27yrRYFKQ9huNBTg0nKZx9BVZIN+sBYqOn4AZgapY3IqFMZHOYQDeOVg4Y76j4nFoGpbdB9BYy4DLtqA",
+	"0aqNUxkKe31GQuqRt3h3I28tL6PioJKDCJQJ5zksGwlD3somavAy++yMqtGE67jbI0eDwTGUQAvXPAAf",
+	"uN0MoghNn5WjD2s9Cs4tpIqmGHvXgln7rlrq9ZelhTSVG/3EikhTAeEtJAkfdS4LbS76Zy3ls5bySXAe",
+	"YB5qRgOUJRe2lKC8NHIzLjooEnHwY/nhg9NxLEm8p3CiwA+IJQVSl9WxFnjgsoFTjRzPQZ6HQshl99jX",
+	"RLRNqoCPaQQPA0GGd7G73MdHD0VHSL0Ns0B5yjzsuA2CITC7nE2BhqkowBcbEUC9Ue1qrgboZJjVkmJg",
+	"Mrg2bWVY5REuioVB5TixERcjKH8BJUQEGOhUkczqHE85E6PMUgYB7j3yfa1cI7Y/p9fY9ohO2Wgmi9xW",
+	"JwgEGK5sO1BREhcQd8IInIJhujusy9EjR/0jVx8KAtFzBtA7AW4KLshS5s2+WYf6OBPPJdaN342tlWL8",
+	"3s0p3trjRnfJz7bOTeYSUUiuKtMJOKQREjNWTOi2DFxU756A7N6zA7mt2JQkqNz6z1r4LwLuUiuUA3l9",
+	"8VjeqQp+Ewu52zibJ4rE6MhoD+eJo3WbWLkOE0xTucZcYksU4jX2Yq4uVBscivi3z7DrLTmmUSKgOg6s",
+	"/ouzlxe+vAsAa5JLN7xUNUbqfCvr4wefxdFQeIwigmzadYSSHn5MhEtIVe9JX2ga6Odwl8/aw2ftYRuS",
+	"/4eCGplktYH23Wnci61itpVOUBP4M8zNGiaWQjHVFfAZrwDx0ua/eGm7vkcCgF1s8jzY+X9ON3r34K8s",
+	"C2pJVs9KGNzgTmDb+d3FSRCKGGAnNeePJDZRmj+phz3yWiqNqcEx5xQkhjIPYzFKsRqKMrypjNOon3nX",
+	"NGqO18EvnUH/sHsyFAwyKOfl1CG/WRSYWF3R/hLWW4vlGoogp1s5dHZNE23Tg9XGVSLEkI4MhRuojXyy",
+	"QGEE3XJtRtsHNEnOFFqvfT11ORmKwNCPRcOD9KoPfKF1FRYw8bZ0NZNLmEKWQTxWjzyxBoCyFm4h+LsC",
+	"154LI+CiUts5Ggw2mE1funTc9yHGYOM/k+BiZ9ZAs85cHJ4zrtR2/sTvMCTGRWMpULe7NMi2jw+vnXPF",
+	"5B+XLcoxkjjgVAc/mmPzby1d1GdR7BcYeQyXx1OjqPS+hSKPFOwWzKwqfdkzfQdCmLVSopMO8zmGWTvj",
+	"9tpvSEmb6jUsqJ6Vli34534sbk+IWrCET3gSkLOAxm1hdwtycTWUwRkcHn119PXDL4+++hmL4bTTzlIe",
+	"/Wx8+/mv/yvhduP299tC03a81wgTs5DViHi8qws0IB1sF0QnzLibsoxplnbbdK3XOJD7tLUAiHeTqoWD",
+	"7n1WmzYeO7OCdqm2xzjeWkdyAG6swG/FcAC7R4SSSZFlleAV0oHKcmW0BUj33WgocpnZOsK0hMh3bFg7",
+	"hYLWT/KpFAOekhlVM6hVukG2f+2qtt1LHh5o/GcCM9iZtVwSB1Tf+yywfhZYd+VYCwjVd2dod/JR4VoH",
+	"PwId+HBg+c92bp+aeGrpS0JFEBlsyAfhgGYzf/rs6DzHGBK0CZS1tYN7UZpNrI9Fu5qWStPG7ANPcfSe",
+	"ntws4cK0by3iuvqRP9w7r/1bJyH/P5Ah7eHzpVjv6koWIpPJ5c438jRjNFc2mgqQkAAMrcRNsTLErRHX",
+	"8Ra6/nydPl+nT3+d8Ox9/G2yLrHdgXDNAT1gZbXmoLL6R2nfR+i0r1yBgGrI+BNBwQ+sBQQcUTCipaYZ",
+	"upxJJ1bsXdytl0x6LbPMZzcaikpNwMZKoopjclE0nhyHGdNorrsnQ1EvJkpotqQrRRTTpANQWsLmC73C",
+	"Mn0coHHWNakMH2dCGzUAIBgzqkZzmbPYIccwft18ZesekSXLmau9QRI5n4ODozcUzyEmwLD26ogU8wnq",
+	"sMKU835IkbBj1yzN2VCIYj6GkrA2/wkupZUvSty6sv0CtIPivECZRkw9aDO2L4cF9AMFi1SOR4AmM/sY",
+	"V1ACXjPhug66w0YSWiB28BhiU8ATA1n5QBiyaaIgBqWHtvs4IrH9vkfTND4msTXqI7IdgTwe+d5zwSdR",
+	"OwDVPhn+GnchsrYRKOlf8D+Fg4BAYR1W0ClL25ihm1M+slmj/MMhPlMKplrNFufQ0DPY3HVmc5uSmSfW",
+	"gFgOxdwA9+iEsbTNtAh3aPeamndaVvSwH9YV/ZmreuPmPGfNYPywpOffRrGzv0UXBbIWc2zNOlejjCpJ",
+	"VvCb22FE8mJr0F8ZO7eeHh8yb7q8AJ0gPV5ZbsxSOsRmQ85UwxHRQb5gQKHQdVzLfvpA+QJZYRrBeqjS",
+	"MaFk0D/E/AiqokcGxB0iwQqX1QC5CaqkVzTjKRkX2gW04cgSKmxOBOunlzmGiRnOybASUgT1oPzWQvrB",
+	"LAJr7sTQb6zf1EXQIM8yCx2MnGnOiuZhxq5qauxjktPlUKRU07IQm57lcikIXdJVj5wJHD8Xi0KTztH1",
+	"dRd7CfOhuupgY7aSNjsN3nd0xh+HmHPIBgHoCVu60nzE2EO3T2WdtBPn3TdL4msSuHJuGR2zDMo+GgVF",
+	"QiGEzlrdLEWmknChZRgmiYdFL6WtgUVSCbhMNYOkh0NRiZA8cZeEpxXowQKy5MKoYBV+9atfkbOUzRdS",
+	"M5GshuKCGdEm+Gr/92wF6drm9NKMUEMlBkUnDAu/Q+twxVwgxFBgigyQBBQKFmwOw79kC2RJvtTX4IgA",
+	"fh+j9awV9AEAKcSU5WCVBTnNJf05ttk8/v7i1be2zuakTJlruF9e5s0UifRB56SjJFnOuGZELWiCsXpz",
+	"Zo69lZ3sis6p1izvnmBHQ3F68V2lI+BjpGTSPr9RTpdkLNMVGa80M1rlPrmgc0Yu2SpyRe39pCKbIdSB",
+	"Lw1lBOcGnr0vvnAZJ4eC+Av1xRdmLRDQUs5r0D+sFc+HUYCQ6hAIsRFbiQ2mDbf3nC0yuoJu84LFJ0RI",
+	"m7AEVrRE91an41BDOpzTMTkaDCoPmgXPWJAQ1U3XEwAuyCTj05nGeduuIcrEDNjsgQ0CtsKma0HzOQPl",
+	"HldfQP05KMKowT0MVQqP+o+hWBzO+5zpfLX/ZKJZHncJN5pKWUdtwgVXMxBpOaD59iFU1nZmzrIlToak",
+	"mA4eGcriX5/JDINlLtnKXy1zdDqxZtf6IFFXcXcoDFsNwNyKsOuFzLV5ske+h1GeotSy/2a1YMfEv1wm",
+	"0h4KhJhgDmtlo3udrrN2PGOkY0bELjuOI4A7leXmSccxTKQ0sUtJG5OOBCZIs+6JrfwQ18Wp2MbiBt0C",
+	"2RwzJ4h2jvr9rjeYwgHlirx983z/a9Ix9BGr7pmrs4/XEfKyckX4VJgD2MX4lKPDr/tD0bFTn9OV6eNd",
+	"IX0x0Hi4F5+QF8/NFp2ev3hOMi4Y1OHr9sgLLiDY24wVDuRQJDOa0wQihxWJfxW7GhO4PeDqMRTuki8W",
+	"LD0h44yKS2hThT9Y+y0ecgmKIPRr9UfcsB45lVkxF8qDRrFap1ghBTo2y/OeJPAQeU/cjpD3QR1GuTQf",
+	"rQhkPgzF+/39/cr/TSvxJRdpTN6TFVPkPego0EIMH+D9mOCTPpjAPez4GvdAhpYv4XVgSOXLyOoqr6JO",
+	"jU9XI/n9Wy52v/JzRP76n/830q+14Khh+TLEc5UREq6EY/sP0A4uwojDkghZ9lIyz9pMXZaCtRfcD2RC",
+	"E0jjPCz6/YeM9EkHH0FR7LBrGjKk5VVQqdMw5Vwue+TcSQLONWANllBbskLhoRRkGQNi7qvdhVDiRJgi",
+	"XERHIRnV1Uaq29F1wBpgI7UegvXqWBEWmUrZTa2HYMW6PXIul5bTckzvb/i1l35MSxiBYNYHE7vDPQj7",
+	"Be5nL4VL2Qy3AEQEfBDe/9bKs4ViJO6BeShlCZ/TDOvsRoQK4ugaEGEBVCo+7D1i+w/jLqalIIauFYqK",
+	"VLkinTJXJyT+ln5rCOqZmMRlfkN+yUKfDpaYyxk2Y1cEcmhDVg4uQIixnCZhWYZsxrMUQ2RXWJRYmUk+",
+	"UMTcaU9Z4WTh68KVizD7lxZ2SVO3hEhqKJlzzKLg1xB/j4yYQ2AdrRxesndUDIzsY0mujad0NM3ixQyx",
+	"wzKp4PuCh476j79EWQj3DXMnYE402ASWk/gASOkB3JdE4LWxn3Bw+FWMx6P5eUg6gGcG1tjlLlcoJeI6",
+	"dv76n/8bVjfyYjbEwTjCimRL5qYjFxxjXnnU71uRGz+HBZK6Loe4YfTA0xBVbCvpmqYG/X5k3gCNBS4y",
+	"Fs1FMQl1DlBYrP2KWe3RtyhFtrJVGKXYR2qCgM8TX5uWrkASGksMfAWVCTFxKFOBfv1AQaMpM0JxHkCz",
+	"TRO2NjJYbyFqy+ZAJtQvea/Xi92+oU3wGlbheCjiOB6KX1lZBjsOqO5iJrUEqWD/kHQsa11nod2hMMc7",
+	"cloTKpRVfuBIf+RpQuQoDGSXh62MBDfPs+jFYdTvPYr6vf5hfxBFG5/oP/66+YlBdNjrmycG/UfNTzyM",
+	"BvjE0eEhPIGnx/0ewcuP+tH3+/3+0aDlgcOHD/GBh9HALmgLZuS82D17RiDx/56t9tbNdeZkwEnzYiCw",
+	"DJt60WrCEObSYs7zGLK7gEhuHk1wtEoO3Tau8uF7H5sPVgezCi0j+svI6tZA6lIS3z2iesMQveRuRicN",
+	"86mlKmgbkJP+t160V+6FD/eWarwIsEzRnlOMqg2sLwRwfvPl2GjMhkSaOc+5eMHEVM9Cg3JYH+HTIaXO",
+	"i5uyvdhqQJiLwSaLyH0doI6RNy2tzq02PxRrNpwIvVH2JcsafFkLu2HWRRGEMDTZCtYXOgbjAYpkesaV",
+	"03t8yScbJSMn4G7ywUKoXVeNF0aB3ibqYSxlxqiAw7BdoAWA2gtXlTsvxL/JmtyfMWu/wLqhUmlzPe1F",
+	"nhghy1/m0INRbApxDZPkNDgv4DBv5+1vd2A4euMcz9QZAI9hxE7ot8mgvVXCqrJgdvX+Gfyu4p/OWcI4",
+	"5JmpErSWiI3byDrnhbj3umSF2ECrP2NofgFhuc4fgIf3Tq/YXQNrLJSm9GP4TIoqqt4ei7vokXOXYTFn",
+	"Q+EL4hpVKXJMmHkrlvJetvVoewye4mIoXE7BND6xKBLnE0QnG6IbeuRJI3oCB+9chZhNHjRKOwgXUYag",
+	"oWAYpSPTJ3CSGeYe5Wj0mrEMsPUlmsLb189DlNFQPGW5oS31rKOO0vzhNAo9EUVWyeOlhiJlCTckKyK1",
+	"fCVQX9FCmka2TtDxUBz2gl6WlSG2JuQ6JrGbVHwyFIOwiUQWWUoqTtba4w/rPfr8ktxllq+9cRS+YT0Y",
+	"tnZHCilFw+xepkVreYJsYLW2HvXCOLVm3I1PGFvJYmYNFfY0YE7VwPeA4wp7i+oZQuH1SpcdX6V6PQFo",
+	"ztApY47OmCaXYNcEI1eQV3QovgwXp5La7JjEUEFKgfpkJv9V+GyQMc06l6g9KhH6lXzSNJxa9xj6tmfI",
+	"0KsKss5D5+AgQ+sOlCUnxOfxsbQkbmeW5x4T8UvkmW50rQXo4OfP7PMXkIO+msgXEZ+FuFOsjS1nhJf4",
+	"44E3lhiU9MfXbnTmGFuzo0NrybAd2VClcU91ewQgj1yRd5irhluaJhJW56NgKEfCICc2ybBzlpUWoU7J",
+	"3eVSYH16mYf5Njy3KGGG1sJs9WhfeSlA32p/cx7UYbdD0QoOIpuxQWZFqySaqzXBwqypW24HOEQOCzWe",
+	"LFzS+/ud6A9pt4HVgiuWJzPSlrrcOkAwBZrttaMYC0hiXSiD8sf2LNgNLyHEgGjQimUTYBGaXjIQEj0H",
+	"Kfl+IW6ECUUo4dgc0GZbwEVi0UOmr5lp26fUtq41ezROvMOK8LSCCQpROuAtAKOFkfMMT7RJQx3zM9zO",
+	"AoxnVIWNWlbupoacGJcSZ9duX7YL+FFs5B4KxeCofqaAxpv5l5dHfJxXXorpDkbzOb3aZ3PT/Wu/aepP",
+	"o5aB4emdy7umZ2y+CzffoBfbjg5+9D65D3esGU9KUAKSy4jQJJdKmXnhfXPZpWz2qQhU2jXFGRJjbmIe",
+	"vqtqyWrQenlaFkzAcWF2S8cAMO9/CVZokdKRirUK6utk5cXZy4vK1NcYmwM+OF9ONTLNj+hu8pncaxHE",
+	"ytp8VhN+6XRm7ZbS2mm9M4WhzMWAF9bVJaXZXVSs/mYF4putMAjzCKoEBt41X30aIm4qNRLBNz0UZe1U",
+	"pelKRQBjtHcVCqlirp9y/DYReb2EdQPx+N6+Uxas2yYw9SPu/du3Rpq7L3Hue78EP1P6uRsL/5XFbz+X",
+	"APwsv31CuuquhtHmgst+N6UAMfnEzlH1Z0oVUNY/pyKVc1sHteMjOQ4HX5Mx16pbiiVTfsUEBocoRx5Z",
+	"kjPtaR6YBRw2QGSrEw9YA2geRO0AksWQZxsBMhSQWQfqWoBnIpNTowe3a7RvzFDvKckOtP0zqaTQ9w3Y",
+	"EdimqLQc2Q1QMwCLil9+BYTP9Ob+6Q3cbULxsASExpKKLfMN4NMehYDJ2ramL+fsSl5a8Cu0dGKhqCVw",
+	"uH/YLX17Ng+xTV0P+XaHIkBBO6tYDu2mll6hytaYQQeG60jFJ5OrKqThaH21cFk+p0r8RZS8Mlvx8dck",
+	"ZyJV91meStmMrS0lqap5NgJn9xXNCjYUckJif/6DyiKxyuSCxRaFO6aKhSFOUNoTfBWo/F08hZZKh3vs",
+	"3ohL32k5XFSKRCqXZYeDfvcEAlt1LjOH6lccKjn99M8DcvGUdJY0F1xMMWjtp39+CF+iq6MLthKjsA3F",
+	"xYwtZzTXJIH/ds4uXpGvvv6qvz+w0/meKT0FKBNY/A/3B6psPCKH+w9VNBSD/YGKyPn+kYrI0f4h2p4O",
+	"+9ekg474Lph6mVlIioiMcmFVFSShEHwAoMywPtdJrWYkWo8z7i0+QxH7Do7JhGYKK2tdcZmhBwUzjoOf",
+	"yBWlDHKwDwUXVzIDTwxEHE6gJBfGdSzl2uZAOSx0J/hNPx6KGPcDPEOiyDJbaAy75KpchB55guEQ5BAi",
+	"IcpZDYU52Cck1nkhEky04XKpiPBEgB8fEqt0BM0h3ke7tTAMAc4kXCtiGXoUyIcAik1YtF5LVS7FUPzh",
+	"lAAjT4ucKUS5VaqoRiRn0yIz7zQVVG228sFoWvjIJoT63SQc/hRlxJr68LPdGjYO6/Tav9YAZn8GYGFD",
+	"P0J/ZES4AGfpVWtEgjkYdwCmf4G+2Vrv1lXb3ruWd9D37+SSzKlY1e9kVEttVCWgEcbq64BIt43S/d6c",
+	"h2UQpmEZVLKwDD5xFha8T22ON5ZzwMpp5Wcc+SgwkZak8XN2lnvI/pfziXYSh01i4i40lKkGOIAVM2rM",
+	"3GxOlfMGYpVFR99NyTeUug4WmdQ9dTW9J/ELeqlgtrDfuBbjULKFiKCF0SIF7PKAlHIcyg42LwH6s5CV",
+	"QVwcI3jazRcoE2F6MisK4Tp7cKVrDUQPvBUM3IMZc4ZqgHBDopLM8O7zBmHEiCsw6k3M73Um9cV3v/3M",
+	"Az/zwM88MOCBfE6n7EBdTX9zPc+qDLAhDK2hfqkhDZ/Z2N0nGQtJLyIegXZHBKnYHXMl0zdLipzrFVDF",
+	"MaM5y58UerZ3/McfzDmyHdbvw1mQzqIQoFQGZfgD9FynVMZVtxcUDymEaogAfo5JvcK23EVDMFOAEzdc",
+	"VAVN2jVZb/RMXLFcQXJCW8HPjNdZ6Sqx3WF7YcG/9Ub/8MTVnwajRuA0rVZIYcuml0s0ZzWPXOQxWwGE",
+	"0vPNpExBV+nFIhXWuvmuEdEYlRDPMm1UvSCxb/1d0tAwVhWD0li2SocXLXhOygJmZCEznnAWLqsr69HQ",
+	"6uszm5S8F5JvMGs15HYE/5NfMFkFvbGMJTqXgidBBYVwc9F71cBl+BUTTPlUefDnnOmcJ659rkgqEx+5",
+	"XAlWxtPyw4f/LwAA//8=",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
