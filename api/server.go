@@ -49,6 +49,7 @@ func DefaultConfig() Config {
 // Server is the HTTP service.
 type Server struct {
 	cfg     Config
+	spec    *specValidator // the contract, for requests no fast path accepts
 	lab     *lab.Service
 	topo    lab.Topology // the database's replication (read-only mode, read replicas)
 	ui      *qaui.Pages
@@ -85,16 +86,15 @@ func New(cfg Config, svc *lab.Service, log *slog.Logger) (*Server, error) {
 	// X-Forwarded-For or X-Real-IP: those headers can be spoofed (see
 	// GO-2026-6872 and GO-2026-6875, reported against Echo's defaults).
 	e.IPExtractor = echo.ExtractIPDirect()
-	e.Binder = &fastPathBinder{}
 	doc, err := oapi.GetSwagger()
 	if err != nil {
 		return nil, fmt.Errorf("api: load the embedded spec: %w", err)
 	}
-	validator, err := requestValidator(doc)
+	spec, err := newSpecValidator(doc)
 	if err != nil {
 		return nil, err
 	}
-	s := &Server{cfg: cfg, lab: svc, topo: svc.Topology(), log: log, echo: e, metrics: newMetrics(svc),
+	s := &Server{cfg: cfg, spec: spec, lab: svc, topo: svc.Topology(), log: log, echo: e, metrics: newMetrics(svc),
 		scopes: newScopeTable(doc), curves: newCurveCache(1024),
 		authFailures: newTokenLimiter(AuthFailureRate, AuthFailureBurst)}
 	switch {
@@ -108,9 +108,10 @@ func New(cfg Config, svc *lab.Service, log *slog.Logger) (*Server, error) {
 	}
 	e.HTTPErrorHandler = s.errorHandler
 	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware, s.framingMiddleware,
-		s.timeoutMiddleware, s.bodyLimitMiddleware, s.replicationMiddleware, s.authMiddleware, s.rateLimitMiddleware, validator)
+		s.timeoutMiddleware, s.bodyLimitMiddleware, s.replicationMiddleware, s.authMiddleware, s.rateLimitMiddleware, requestValidator(spec))
 	s.metrics.registry.MustRegister(newReplicationCollector(s.topo))
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
+	s.registerDecodedRoutes(e)
 	s.ui = qaui.New(qaui.Deps{Lab: svc, Log: log, Curve: s.freshCurve, Reviewed: s.curves.drop,
 		Plot:       func(ctx context.Context, id string) ([]byte, error) { return s.plot(ctx, id, curveplot.FormatSVG) },
 		TrendChart: trendChart, RequestID: requestID, Status: StatusOf,

@@ -27,40 +27,21 @@ func init() {
 // requestValidator checks every request against the OpenAPI document before
 // a handler sees it: parameters, content type and body. Its failures become
 // problem details naming each offending field.
-func requestValidator(doc *openapi3.T) (echo.MiddlewareFunc, error) {
-	spec, err := newSpecValidator(doc)
-	if err != nil {
-		return nil, err
-	}
+func requestValidator(spec *specValidator) echo.MiddlewareFunc {
 	return func(next echo.HandlerFunc) echo.HandlerFunc {
 		return func(c echo.Context) error {
 			if qaui.IsPath(c.Request().URL.Path) {
 				return next(c) // the QA pages check their own form input
 			}
-			if c.Request().Method == http.MethodPost {
-				var fast func(echo.Context) (bool, error)
-				switch c.Path() {
-				case predictionRoute:
-					fast = predictionFastPath
-				case runsRoute:
-					fast = runFastPath
-				}
-				if fast != nil {
-					ok, err := fast(c)
-					if err != nil {
-						return err
-					}
-					if ok {
-						return next(c)
-					}
-				}
+			if c.Request().Method == http.MethodPost && decodedRoutes[c.Path()] {
+				return next(c) // decode.go: the route's own decode step validates
 			}
 			if err := spec.validate(c); err != nil {
 				return err
 			}
 			return next(c)
 		}
-	}, nil
+	}
 }
 
 // specValidator is kin-openapi's validation of a request against the spec,

@@ -39,59 +39,28 @@ const (
 // predictionFastPath reads the body of a prediction request, puts it back
 // for the handler, and reports whether the request certainly satisfies the
 // spec. A body over the limit is answered 413, as the other routes do.
-func predictionFastPath(c echo.Context) (bool, error) {
+func predictionFastPath(c echo.Context) (*oapi.PredictionRequest, bool, error) {
 	req := c.Request()
 	if req.Body == nil {
-		return false, nil
+		return nil, false, nil
 	}
 	raw, err := io.ReadAll(req.Body)
 	if err != nil {
 		var mbe *http.MaxBytesError
 		if errors.As(err, &mbe) {
-			return false, newProblem(http.StatusRequestEntityTooLarge, fmt.Sprintf("the body is over the limit of %d bytes", mbe.Limit))
+			return nil, false, newProblem(http.StatusRequestEntityTooLarge, fmt.Sprintf("the body is over the limit of %d bytes", mbe.Limit))
 		}
-		return false, fmt.Errorf("api: read prediction body: %w", err)
+		return nil, false, fmt.Errorf("api: read prediction body: %w", err)
 	}
 	req.Body = io.NopCloser(bytes.NewReader(raw))
 	if req.URL.RawQuery != "" || !isLowerUUID(c.Param("id")) {
-		return false, nil
+		return nil, false, nil
 	}
 	if mt, _, err := mime.ParseMediaType(req.Header.Get(echo.HeaderContentType)); err != nil || mt != echo.MIMEApplicationJSON {
-		return false, nil
+		return nil, false, nil
 	}
 	body, ok := decodeFastPrediction(raw)
-	if ok {
-		c.Set(fastPredictionKey, body)
-	}
-	return ok, nil
-}
-
-// fastPredictionKey holds, in the echo context, the prediction request the
-// fast path accepted and decoded.
-const fastPredictionKey = "curvekeeper.fastPrediction"
-
-// fastPathBinder is the server's echo binder. The generated strict handler
-// binds only the body with a custom binder as with echo's default one
-// (DefaultBinder.BindBody); for a prediction request or a JSON run that a
-// fast path accepted, it hands over the value the fast path decoded from the
-// same bytes instead of decoding them a second time.
-type fastPathBinder struct{ echo.DefaultBinder }
-
-// Bind binds the request body into i.
-func (b *fastPathBinder) Bind(i any, c echo.Context) error {
-	switch dst := i.(type) {
-	case *oapi.PredictionRequest:
-		if v, ok := c.Get(fastPredictionKey).(*oapi.PredictionRequest); ok && v != nil {
-			*dst = *v
-			return nil
-		}
-	case *oapi.RunRequest:
-		if v, ok := c.Get(fastRunKey).(*oapi.RunRequest); ok && v != nil {
-			*dst = *v
-			return nil
-		}
-	}
-	return b.DefaultBinder.BindBody(c, i)
+	return body, ok, nil
 }
 
 // predictionBodyOK reports whether raw is a PredictionRequest the spec
@@ -103,7 +72,7 @@ func predictionBodyOK(raw []byte) bool {
 
 // decodeFastPrediction is predictionBodyOK returning, when it accepts, the
 // request it decoded, so that the handler need not decode the body again
-// (see fastPathBinder). It parses the body itself in one pass (see
+// (see decode.go). It parses the body itself in one pass (see
 // fastParser) and then checks the schema's bounds.
 func decodeFastPrediction(raw []byte) (*oapi.PredictionRequest, bool) {
 	p := fastParser{raw: raw}

@@ -197,7 +197,7 @@ func TestFastPathNeverAcceptsWhatTheSpecRefuses(t *testing.T) {
 				return
 			}
 			// The handler receives the fast path's value instead of echo's
-			// decode of the same bytes (fastPathBinder): they must agree.
+			// decode of the same bytes (decode.go): they must agree.
 			fast, _ := decodeFastPrediction([]byte(tc.body))
 			var want oapi.PredictionRequest
 			if err := json.Unmarshal([]byte(tc.body), &want); err != nil {

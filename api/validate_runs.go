@@ -52,24 +52,20 @@ const (
 var fastRunMemberNames = []string{memberMethod, memberInstrument, memberAcquiredAt, memberOperator,
 	memberStandards, memberSamples, memberAnalyte, memberLevel, memberConcentration, memberID, memberResponses, memberDilution}
 
-// fastRunKey holds, in the echo context, the run the fast path accepted and
-// decoded (handed to the handler by fastPathBinder).
-const fastRunKey = "curvekeeper.fastRun"
-
 // runFastPath reports whether a POST /v1/runs request certainly satisfies
 // the spec. It looks only at JSON runs with no query (the CSV run's
 // parameters, which a JSON run must not carry, are the spec's and the
 // handler's to judge) and at most one valid Idempotency-Key; only then does
 // it read the body, and it always puts the body back as it read it.
-func runFastPath(c echo.Context) (bool, error) {
+func runFastPath(c echo.Context) (*oapi.RunRequest, bool, error) {
 	req := c.Request()
 	if req.Body == nil || req.URL.RawQuery != "" || !jsonContentType(req.Header.Get(echo.HeaderContentType)) {
-		return false, nil
+		return nil, false, nil
 	}
 	// kin-openapi reads the header's values from the map as this does; the
 	// generated wrapper refuses more than one value.
 	if keys, ok := req.Header[headerIdempotencyKey]; ok && (len(keys) != 1 || !isIdempotencyKey(keys[0])) {
-		return false, nil
+		return nil, false, nil
 	}
 	raw, err := io.ReadAll(req.Body)
 	if err != nil {
@@ -77,14 +73,11 @@ func runFastPath(c echo.Context) (bool, error) {
 		// (a body over the limit, a broken connection), and answers it as
 		// before.
 		req.Body = io.NopCloser(io.MultiReader(bytes.NewReader(raw), errReader{err}))
-		return false, nil
+		return nil, false, nil
 	}
 	req.Body = io.NopCloser(bytes.NewReader(raw))
 	run, ok := decodeFastRun(raw)
-	if ok {
-		c.Set(fastRunKey, run)
-	}
-	return ok, nil
+	return run, ok, nil
 }
 
 // jsonContentType reports whether ct is application/json, possibly with

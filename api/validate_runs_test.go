@@ -172,12 +172,12 @@ func runDecisions(t testing.TB, spec *specValidator, rc runCase) runDecision {
 	var d runDecision
 	e := echo.New()
 	c := e.NewContext(rc.request(), httptest.NewRecorder())
-	fast, err := runFastPath(c)
+	run, fast, err := runFastPath(c)
 	if err != nil {
 		t.Fatalf("runFastPath: %v", err)
 	}
 	if d.fast = fast; fast {
-		d.fastRun = c.Get(fastRunKey).(*oapi.RunRequest)
+		d.fastRun = run
 	}
 	// The body the fast path put back is the body it read.
 	if back, err := io.ReadAll(c.Request().Body); err != nil || string(back) != rc.body {
@@ -429,7 +429,7 @@ func TestRunFastPathKeepsReadErrors(t *testing.T) {
 	req := httptest.NewRequest(http.MethodPost, "/v1/runs", io.MultiReader(strings.NewReader(`{"method":`), errReader{broken}))
 	req.Header.Set(echo.HeaderContentType, echo.MIMEApplicationJSON)
 	c := echo.New().NewContext(req, httptest.NewRecorder())
-	if ok, err := runFastPath(c); ok || err != nil {
+	if _, ok, err := runFastPath(c); ok || err != nil {
 		t.Fatalf("runFastPath = %t, %v; want false, nil", ok, err)
 	}
 	got, err := io.ReadAll(c.Request().Body)
@@ -441,7 +441,7 @@ func TestRunFastPathKeepsReadErrors(t *testing.T) {
 	limited.Header.Set(echo.HeaderContentType, echo.MIMEApplicationJSON)
 	limited.Body = http.MaxBytesReader(httptest.NewRecorder(), limited.Body, 10)
 	c = echo.New().NewContext(limited, httptest.NewRecorder())
-	if ok, err := runFastPath(c); ok || err != nil {
+	if _, ok, err := runFastPath(c); ok || err != nil {
 		t.Fatalf("runFastPath = %t, %v; want false, nil", ok, err)
 	}
 	if got, err := io.ReadAll(c.Request().Body); len(got) != 10 || !errors.As(err, &mbe) {
