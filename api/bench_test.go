@@ -28,7 +28,7 @@ import (
 //	go test ./api -run '^$' -bench PredictRoute -benchmem -cpuprofile /tmp/predict.pprof
 func BenchmarkPredictRoute(b *testing.B) {
 	db := dbtest.NewDB(b)
-	s, err := api.New(api.Config{RateLimit: -1}, lab.NewService(db), slog.New(slog.NewJSONHandler(io.Discard, nil)))
+	s, err := api.New(api.Config{RateLimit: -1}, lab.NewService(db, testClock), slog.New(slog.NewJSONHandler(io.Discard, nil)))
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -91,7 +91,7 @@ func processCPU() int64 {
 //	go test ./api -run '^$' -bench IngestRoute -benchmem -benchtime 2000x
 func BenchmarkIngestRoute(b *testing.B) {
 	db := dbtest.NewDB(b)
-	s, err := api.New(api.Config{RateLimit: -1}, lab.NewService(db), slog.New(slog.NewJSONHandler(io.Discard, nil)))
+	s, err := api.New(api.Config{RateLimit: -1}, lab.NewService(db, testClock), slog.New(slog.NewJSONHandler(io.Discard, nil)))
 	if err != nil {
 		b.Fatal(err)
 	}

@@ -41,7 +41,7 @@ func newFuzzServer(f *testing.F) *fuzzServer {
 	db := dbtest.NewDB(f)
 	ctx := context.Background()
 	srv, err := api.New(api.Config{BodyLimit: 256 << 10, RequestTimeout: 10 * time.Second, RateLimit: -1},
-		lab.NewService(db), slog.New(slog.DiscardHandler))
+		lab.NewService(db, testClock), slog.New(slog.DiscardHandler))
 	if err != nil {
 		f.Fatal(err)
 	}

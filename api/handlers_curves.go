@@ -33,6 +33,9 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 	if q.Limit != nil {
 		f.Limit = *q.Limit
 	}
+	if err := lab.CheckQueryTimes("from", f.From, "to", f.To); err != nil {
+		return nil, err
+	}
 	page, err := s.reads(ctx).ListCurves(ctx, f) // history tolerates the replicas' lag
 	if err != nil {
 		return nil, err

@@ -2,7 +2,6 @@ package api
 
 import (
 	"context"
-	"time"
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
@@ -110,8 +109,11 @@ func (s *Server) curveWithExclusion(ctx context.Context, c *lab.Curve) (oapi.Cur
 // GetCurveInForce returns the curve that applied to an instrument and
 // analyte at a moment.
 func (s *Server) GetCurveInForce(ctx context.Context, req oapi.GetCurveInForceRequestObject) (oapi.GetCurveInForceResponseObject, error) {
-	at := time.Now().UTC()
+	at := s.lab.Now().UTC()
 	if req.Params.At != nil {
+		if err := lab.CheckTimestamp(lab.InQuery, "/at", *req.Params.At); err != nil {
+			return nil, err
+		}
 		at = req.Params.At.UTC()
 	}
 	in, err := s.lab.CurveInForce(ctx, req.Instrument, req.Params.Analyte, at)
@@ -130,8 +132,11 @@ func (s *Server) GetCurveInForce(ctx context.Context, req oapi.GetCurveInForceRe
 // CreateInstrumentPredictions quantifies samples against the curve in force,
 // so that a LIMS need not track curve ids.
 func (s *Server) CreateInstrumentPredictions(ctx context.Context, req oapi.CreateInstrumentPredictionsRequestObject) (oapi.CreateInstrumentPredictionsResponseObject, error) {
-	at := time.Now().UTC()
+	at := s.lab.Now().UTC()
 	if req.Body.At != nil {
+		if err := lab.CheckTimestamp(lab.InBody, "/at", *req.Body.At); err != nil {
+			return nil, err
+		}
 		at = req.Body.At.UTC()
 	}
 	in, err := s.lab.CurveInForce(ctx, req.Instrument, string(req.Body.Analyte), at)

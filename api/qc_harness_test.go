@@ -38,7 +38,7 @@ func newQCEnv(t *testing.T) *qcEnv {
 	t.Helper()
 	db := dbtest.NewDB(t)
 	var logs bytes.Buffer
-	s, err := api.New(api.Config{}, lab.NewService(db), slog.New(slog.NewTextHandler(&logs, nil)))
+	s, err := api.New(api.Config{}, lab.NewService(db, testClock), slog.New(slog.NewTextHandler(&logs, nil)))
 	if err != nil {
 		t.Fatalf("api.New: %v", err)
 	}

@@ -22,7 +22,7 @@ import (
 func envOn(t *testing.T, db *store.DB) *env {
 	t.Helper()
 	logs := &syncBuffer{}
-	s, err := api.New(api.Config{}, lab.NewService(db), slog.New(slog.NewJSONHandler(logs, nil)))
+	s, err := api.New(api.Config{}, lab.NewService(db, testClock), slog.New(slog.NewJSONHandler(logs, nil)))
 	if err != nil {
 		t.Fatal(err)
 	}

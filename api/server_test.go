@@ -81,11 +81,11 @@ func newEnvConfig(t testing.TB, cfg api.Config) *env {
 	return newEnvDB(t, cfg, dbtest.NewDB(t))
 }
 
-func newEnvDB(t testing.TB, cfg api.Config, db *store.DB) *env {
+func newEnvDB(t testing.TB, cfg api.Config, db *store.DB, opts ...lab.Option) *env {
 	t.Helper()
 	logs := &syncBuffer{}
 	logger := slog.New(slog.NewJSONHandler(logs, &slog.HandlerOptions{Level: slog.LevelDebug}))
-	s, err := api.New(cfg, lab.NewService(db), logger)
+	s, err := api.New(cfg, lab.NewService(db, append([]lab.Option{testClock}, opts...)...), logger)
 	if err != nil {
 		t.Fatalf("api.New: %v", err)
 	}

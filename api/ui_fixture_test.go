@@ -52,7 +52,7 @@ type uiEnv struct {
 func newUIEnv(t *testing.T, tls bool) *uiEnv {
 	t.Helper()
 	db := dbtest.NewDB(t)
-	s, err := api.New(api.Config{}, lab.NewService(db), slog.New(slog.NewTextHandler(io.Discard, nil)))
+	s, err := api.New(api.Config{}, lab.NewService(db, testClock), slog.New(slog.NewTextHandler(io.Discard, nil)))
 	if err != nil {
 		t.Fatal(err)
 	}

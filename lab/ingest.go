@@ -27,6 +27,13 @@ type RunStore interface {
 // instrument's raw data is never thrown away. in.Method names the method;
 // in.MethodRevision, TokenID and Actor are filled in here.
 func (s *Service) Ingest(ctx context.Context, p Principal, in RunInput) (*RunCreated, error) {
+	at := InBody // a CSV run names its acquired_at as a query parameter
+	if in.SourceFormat == FormatCSV {
+		at = InQuery
+	}
+	if err := s.checkClaimed(at, "/acquired_at", in.AcquiredAt, s.now()); err != nil {
+		return nil, err
+	}
 	// One round trip for the idempotency key, the method's latest revision
 	// and the drift history of every analyte the run names.
 	reads, err := s.store.ReadForRun(ctx, RunReadsQuery{TokenID: p.TokenID, Key: in.IdempotencyKey, RequestHash: in.RequestHash,

@@ -20,8 +20,12 @@ type CurveFacts struct {
 	FailedChecks []string
 	ReviewedBy   string
 	ReviewReason string
-	SupersededBy string             // the revision's id; "" while the curve is current
-	Checks       []VerificationFact // ordered by at, then id
+	SupersededBy string // the revision's id; "" while the curve is current
+	// Checks are the verifications of the curve and of every curve it
+	// revises, ordered by at, then id: a revision keeps the verification
+	// history of the curve it revises, because an exclusion corrects a
+	// standard, not the instrument's drift.
+	Checks []VerificationFact
 }
 
 // VerificationFact is one verification as the release state needs it.
@@ -45,7 +49,9 @@ type VerificationFact struct {
 //  4. the curve failed its mandatory checks and was not approved: withheld;
 //  5. the latest verification at or before acquiredAt failed: withheld until
 //     a passing verification (results acquired after that one are not held)
-//     or a new curve (whose results do not depend on this curve's QC);
+//     or a new curve from a new run (whose results do not depend on this
+//     curve's QC); a revision made by excluding standards is not a new
+//     curve in this sense: it keeps the checks of the curve it revises;
 //  6. the curve awaits review: provisional;
 //  7. otherwise the curve is approved (by a reviewer, with a reason when it
 //     had failed checks): releasable.

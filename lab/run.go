@@ -86,8 +86,8 @@ func CheckRun(in *RunInput, curves []CurveInput) error {
 		return Errorf(KindInvalid, "method revision is required")
 	case strings.TrimSpace(in.Instrument) == "" || len(in.Instrument) > MaxNameLen:
 		return FieldError("/instrument", "instrument must be 1 to %d characters", MaxNameLen)
-	case in.AcquiredAt.IsZero():
-		return FieldError("/acquired_at", "acquired_at is required")
+	case in.AcquiredAt.Before(MinTimestamp) || in.AcquiredAt.After(MaxTimestamp):
+		return CheckTimestamp(InBody, "/acquired_at", in.AcquiredAt)
 	case in.SourceFormat != FormatJSON && in.SourceFormat != FormatCSV:
 		return Errorf(KindInvalid, "unknown source format %q", in.SourceFormat)
 	case len(in.RequestHash) == 0:

@@ -13,6 +13,7 @@ package lab
 
 import (
 	"context"
+	"slices"
 	"strings"
 	"time"
 )
@@ -79,12 +80,20 @@ type Service struct {
 	store  Writer
 	people PeopleStore
 	topo   Topology
+	now    func() time.Time // the receipt clock (WithClock)
+	skew   time.Duration    // how far ahead of receipt a claimed time may lie
 	// People is the lab's setting for accounts and signatures.
 	People PeopleConfig
 }
 
 // NewService returns the rules over st.
-func NewService(st Store) *Service { return &Service{Reader: st, store: st, people: st, topo: st} }
+func NewService(st Store, opts ...Option) *Service {
+	s := &Service{Reader: st, store: st, people: st, topo: st, now: time.Now, skew: DefaultFutureSkew}
+	for _, o := range opts {
+		o(s)
+	}
+	return s
+}
 
 // Topology returns the database's replication, for the api.
 func (s *Service) Topology() Topology { return s.topo }
@@ -131,6 +140,9 @@ func (s *Service) Review(ctx context.Context, p Principal, id, decision, reason 
 // the rules (the curve is current, fitted, not rejected, and the standard
 // measured after it) are checked with the curve locked.
 func (s *Service) Verify(ctx context.Context, p Principal, in VerificationInput) (*Verification, error) {
+	if err := s.checkClaimed(InBody, "/at", in.At, s.now()); err != nil {
+		return nil, err
+	}
 	in.Actor = p.Actor()
 	return s.store.CreateVerification(ctx, in)
 }
@@ -138,6 +150,17 @@ func (s *Service) Verify(ctx context.Context, p Principal, in VerificationInput)
 // AddSamples quantifies samples posted after their run against its curves
 // on behalf of p.
 func (s *Service) AddSamples(ctx context.Context, p Principal, runID string, samples []Sample) ([]Result, error) {
+	received := s.now().UTC()
+	samples = slices.Clone(samples)
+	for i, sm := range samples {
+		if sm.AcquiredAt == nil { // acquired when received
+			samples[i].AcquiredAt = &received
+			continue
+		}
+		if err := s.checkClaimed(InBody, Pointer("samples", i, "acquired_at"), *sm.AcquiredAt, received); err != nil {
+			return nil, err
+		}
+	}
 	return s.store.AddSamples(ctx, runID, samples, p.Actor())
 }
 

@@ -63,6 +63,9 @@ func (s *Service) Trend(ctx context.Context, q TrendQuery) (*Trend, error) {
 	if q.BaselineN == 0 {
 		q.BaselineN = DefaultBaselineN
 	}
+	if err := CheckQueryTimes("from", q.From, "to", q.To); err != nil {
+		return nil, err
+	}
 	curves, truncated, err := s.TrendSeries(ctx, TrendFilter{Instrument: q.Instrument, Analyte: q.Analyte, From: q.From, To: q.To})
 	if err != nil {
 		return nil, err

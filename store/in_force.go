@@ -105,13 +105,19 @@ LIMIT $4`, instrument, analyte, at, inForceScan)
 	return out, nil
 }
 
-// lastVerification returns the latest verification of curveID at or before
-// at; ok is false when there is none.
+// lastVerification returns the latest verification of curveID, or of a
+// curve it revises, at or before at; ok is false when there is none.
 func lastVerification(ctx context.Context, tx pgx.Tx, curveID string, at time.Time) (v lab.Verification, ok bool, err error) {
 	rows, err := tx.Query(ctx, `
 SELECT id, curve_id, kind, level, concentration, responses, found, recovery_pct, difference_pct, limit_pct, passed,
        detail, at, created_at, created_by
-FROM verifications WHERE curve_id = $1 AND at <= $2 ORDER BY at DESC, id DESC LIMIT 1`, curveID, at)
+FROM verifications
+WHERE curve_id IN (WITH RECURSIVE lineage (id) AS (
+        SELECT $1::uuid
+        UNION ALL
+        SELECT c.revision_of FROM curves c JOIN lineage l ON c.id = l.id WHERE c.revision_of IS NOT NULL)
+    SELECT id FROM lineage) AND at <= $2
+ORDER BY at DESC, id DESC LIMIT 1`, curveID, at)
 	if err != nil {
 		return v, false, classify("select last verification", err)
 	}

@@ -29,8 +29,16 @@ WHERE c.id = $1`, id).Scan(&f.Status, &f.Verdict, &f.Fitted, &f.FailedChecks, &r
 		return nil, classify("select facts of curve "+id, err)
 	}
 	f.ReviewedBy, f.ReviewReason, f.SupersededBy = deref(reviewer), deref(reason), deref(revision)
+	// The checks of the curve and of every curve it revises (lab.ReleaseOf:
+	// a revision keeps the verification history of the curve it revises).
 	rows, err := tx.Query(ctx, `
-SELECT id, kind, at, passed, difference_pct, limit_pct FROM verifications WHERE curve_id = $1 ORDER BY at, id`, id)
+WITH RECURSIVE lineage (id) AS (
+    SELECT $1::uuid
+    UNION ALL
+    SELECT c.revision_of FROM curves c JOIN lineage l ON c.id = l.id WHERE c.revision_of IS NOT NULL
+)
+SELECT v.id, v.kind, v.at, v.passed, v.difference_pct, v.limit_pct
+FROM verifications v JOIN lineage l ON v.curve_id = l.id ORDER BY v.at, v.id`, id)
 	if err != nil {
 		return nil, classify("select verifications of curve "+id, err)
 	}

@@ -239,7 +239,7 @@ func TestCreateRunRefusesBadInput(t *testing.T) {
 		field  string
 	}{
 		{"no instrument", func(in *lab.RunInput) { in.Instrument = "" }, "/instrument"},
-		{"no time", func(in *lab.RunInput) { in.AcquiredAt = time.Time{} }, "/acquired_at"},
+		{"time before year 1 in UTC", func(in *lab.RunInput) { in.AcquiredAt = time.Date(1, 1, 1, 13, 0, 0, 0, time.FixedZone("", 14*3600)) }, "/acquired_at"},
 		{"no standards", func(in *lab.RunInput) { in.Standards = nil }, "/standards"},
 		{"negative concentration", func(in *lab.RunInput) { in.Standards[2].Concentration = -1 }, "/standards/2/concentration"},
 		{"NaN response", func(in *lab.RunInput) { in.Standards[1].Responses[1] = nanValue() }, "/standards/1/responses/1"},

@@ -33,8 +33,8 @@ func (db *DB) CreateVerification(ctx context.Context, in lab.VerificationInput) 
 	if strings.TrimSpace(in.Level) == "" {
 		return nil, lab.FieldError("/level", "level is required")
 	}
-	if in.At.IsZero() {
-		return nil, lab.FieldError("/at", "at is required")
+	if err := lab.CheckTimestamp(lab.InBody, "/at", in.At); err != nil {
+		return nil, err
 	}
 	id, err := newID()
 	if err != nil {

@@ -40,6 +40,9 @@ type config struct {
 	// person's account.
 	LabZone          *time.Location
 	MaxFailedSignIns int
+	// ClockSkew is how far ahead of its receipt a claimed measurement time
+	// may lie (lab.DefaultFutureSkew unless set).
+	ClockSkew time.Duration
 }
 
 // usageError is a bad command line or setting; it exits with status 2.
@@ -84,6 +87,7 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	labZone := fs.String("lab-time-zone", env("CURVEKEEPER_LAB_TIME_ZONE", "UTC"), "the lab's IANA time zone, shown beside UTC on signatures and printed records (CURVEKEEPER_LAB_TIME_ZONE)")
 	maxFailed := fs.Int("max-failed-sign-ins", 0, "wrong passwords in a row that lock a person's account; 0 means CURVEKEEPER_MAX_FAILED_SIGN_INS or 5")
 	checkEvery := fs.String("replica-check-interval", env("CURVEKEEPER_REPLICA_CHECK_INTERVAL", "1s"), "how often the service checks whether its database is a standby and how far replicas lag (CURVEKEEPER_REPLICA_CHECK_INTERVAL)")
+	clockSkew := fs.String("clock-skew", env("CURVEKEEPER_CLOCK_SKEW", "24h"), "how far ahead of its receipt a run's, sample's or verification's time may lie (CURVEKEEPER_CLOCK_SKEW)")
 	cfg.BootstrapToken = getenv("CURVEKEEPER_BOOTSTRAP_TOKEN")
 	// Flags may come before or after positional arguments ("migrate down 1
 	// --database-url …"): the flag package stops at the first positional one,
@@ -125,6 +129,7 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 		{"--migrate-lock-timeout", *lockWait, &cfg.MigrateLockWait},
 		{"--replica-max-lag", *maxLag, &cfg.MaxReplicaLag},
 		{"--replica-check-interval", *checkEvery, &cfg.CheckInterval},
+		{"--clock-skew", *clockSkew, &cfg.ClockSkew},
 	}
 	for _, d := range durations {
 		v, err := time.ParseDuration(d.in)

@@ -43,7 +43,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 	if err := store.MigrateUp(ctx, dbase.url, cfg.MigrateLockWait); err != nil {
 		return err
 	}
-	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout}, lab.NewService(db),
+	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout}, lab.NewService(db, lab.WithClock(now)),
 		slog.New(slog.NewJSONHandler(io.Discard, nil)))
 	if err != nil {
 		return err

@@ -160,7 +160,7 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 	if rateLimit == 0 {
 		rateLimit = -1 // off
 	}
-	svc := lab.NewService(db)
+	svc := lab.NewService(db, lab.WithFutureSkew(cfg.ClockSkew))
 	svc.People = lab.PeopleConfig{MaxFailedSignIns: cfg.MaxFailedSignIns, Zone: cfg.LabZone}
 	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout,
 		RateLimit: rateLimit, RateBurst: cfg.RateBurst}, svc, log)

@@ -1,0 +1,5 @@
+ALTER TABLE verifications DROP CONSTRAINT verifications_at_representable;
+ALTER TABLE sample_results DROP CONSTRAINT sample_results_acquired_at_representable;
+ALTER TABLE run_samples DROP CONSTRAINT run_samples_acquired_at_representable;
+ALTER TABLE curves DROP CONSTRAINT curves_acquired_at_representable;
+ALTER TABLE runs DROP CONSTRAINT runs_acquired_at_representable;
