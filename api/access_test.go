@@ -90,7 +90,7 @@ func TestInstrumentBinding(t *testing.T) {
 		"acquired_at": baseTime.Add(time.Hour).Format(time.RFC3339)}}}
 	wantProblem(t, e.postJSON(t, p8, runPath+"/samples", late), http.StatusNotFound, "")
 	ccv := map[string]any{"level": "CCV", "concentration": 2, "responses": []float64{1.04}, "kind": "continuing",
-		"at": baseTime.Add(2 * time.Hour).Format(time.RFC3339)}
+		"acquired_at": baseTime.Add(2 * time.Hour).Format(time.RFC3339)}
 	wantProblem(t, e.postJSON(t, p8, curvePath+"/verifications", ccv), http.StatusNotFound, "")
 	if d := before.diff(e.counts(t)); d != "" {
 		t.Errorf("refused writes to another instrument's run wrote rows: %s", d)

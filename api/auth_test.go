@@ -140,6 +140,7 @@ func TestScopeMatrix(t *testing.T) {
 	e.method(t, "nitrate-uv", "nitrate")
 	run := e.run(t, e.admin, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 1)))
 	curve := "/v1/curves/" + run.Curves[0].ID.String()
+	e.person(t, "matrix-qa", "Matrix QA", "reviewer", "qa-approver")
 	n := 0
 	// Fresh curves come from an instrument token, so that every caller,
 	// admin included, may review them (the four-eyes rule).
@@ -260,6 +261,42 @@ func TestScopeMatrix(t *testing.T) {
 		},
 		"getStandardMaterial": func(*testing.T) (call, int) {
 			return call{method: http.MethodGet, path: "/v1/standard-materials/CRM-0"}, http.StatusOK
+		},
+		"listPeople": func(*testing.T) (call, int) { return call{method: http.MethodGet, path: "/v1/people"}, http.StatusOK },
+		"createPerson": func(*testing.T) (call, int) {
+			n++
+			return jsonCall(http.MethodPost, "/v1/people", map[string]any{"login": fmt.Sprintf("p-%d", n), "full_name": "Pat Example",
+				"roles": []string{"analyst"}, "password": "matrix-password"}), http.StatusCreated
+		},
+		"disablePerson": func(t *testing.T) (call, int) {
+			n++
+			e.person(t, fmt.Sprintf("d-%d", n), "Dana Example", "analyst")
+			return call{method: http.MethodPost, path: fmt.Sprintf("/v1/people/d-%d/disable", n)}, http.StatusOK
+		},
+		"unlockPerson": func(*testing.T) (call, int) {
+			return call{method: http.MethodPost, path: "/v1/people/matrix-qa/unlock"}, http.StatusOK
+		},
+		"signCurve": func(t *testing.T) (call, int) {
+			return jsonCall(http.MethodPost, freshCurve(t)+"/signatures", map[string]any{"login": "matrix-qa", "password": "matrix-qa-password",
+				"meaning": "review"}), http.StatusCreated
+		},
+		"listCurveSignatures": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: curve + "/signatures"}, http.StatusOK
+		},
+		"withdrawSignature": func(t *testing.T) (call, int) {
+			sig := decode[oapi.Signature](t, e.postJSON(t, e.admin, freshCurve(t)+"/signatures", map[string]any{"login": "matrix-qa",
+				"password": "matrix-qa-password", "meaning": "review"}), http.StatusCreated)
+			return jsonCall(http.MethodPost, "/v1/signatures/"+sig.ID.String()+"/withdrawal", map[string]any{"login": "matrix-qa",
+				"password": "matrix-qa-password", "reason": "matrix"}), http.StatusOK
+		},
+		"searchAudit": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: "/v1/audit?person=matrix-qa&limit=5"}, http.StatusOK
+		},
+		"getCurveRecordPDF": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: curve + "/record.pdf"}, http.StatusOK
+		},
+		"recalculateCurve": func(*testing.T) (call, int) {
+			return call{method: http.MethodPost, path: curve + "/recalculation"}, http.StatusOK
 		},
 		"deleteToken": func(t *testing.T) (call, int) {
 			id, _ := e.token(t, "doomed", "results:read")

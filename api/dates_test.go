@@ -52,11 +52,11 @@ func TestTimestampsAreRepresentableAndPlausible(t *testing.T) {
 		return map[string]any{"samples": []map[string]any{{"id": "LATE-1", "analyte": "nitrate", "responses": []float64{1.5}, "acquired_at": s}}}
 	}
 	ccv := func(s string) map[string]any {
-		return map[string]any{"kind": "continuing", "level": "CCV", "concentration": 2, "responses": []float64{1.04}, "at": s}
+		return map[string]any{"kind": "continuing", "level": "CCV", "concentration": 2, "responses": []float64{1.04}, "acquired_at": s}
 	}
 	for _, s := range []string{"9999-12-31T23:59:59-14:00", "9999-12-31T00:00:00Z", "2026-03-06T12:00:01Z"} {
 		wantProblem(t, e.postJSON(t, e.admin, "/v1/runs/"+run.ID.String()+"/samples", late(s)), http.StatusUnprocessableEntity, "/samples/0/acquired_at")
-		wantProblem(t, e.postJSON(t, e.admin, curve+"/verifications", ccv(s)), http.StatusUnprocessableEntity, "/at")
+		wantProblem(t, e.postJSON(t, e.admin, curve+"/verifications", ccv(s)), http.StatusUnprocessableEntity, "/acquired_at")
 	}
 	for _, q := range []string{
 		"/v1/instruments/photometer-7/curves/current?analyte=nitrate&at=",

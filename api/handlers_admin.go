@@ -208,7 +208,8 @@ func (s *Server) CreateToken(ctx context.Context, req oapi.CreateTokenRequestObj
 			scopes = append(scopes, string(sc))
 		}
 	}
-	in := lab.TokenInput{Name: string(req.Body.Name), Scopes: scopes, AllowDualRole: req.Body.AllowDualRole != nil && *req.Body.AllowDualRole}
+	in := lab.TokenInput{Name: string(req.Body.Name), Scopes: scopes, AllowDualRole: req.Body.AllowDualRole != nil && *req.Body.AllowDualRole,
+		Owner: deref(req.Body.Owner)}
 	if req.Body.Instruments != nil {
 		in.Instruments = make([]string, 0, len(*req.Body.Instruments))
 		for _, name := range *req.Body.Instruments {

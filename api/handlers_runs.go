@@ -61,6 +61,11 @@ func runBody(req oapi.CreateRunRequestObject) (*oapi.RunRequest, string, []byte,
 				"the query parameters method, instrument, acquired_at and operator are for text/csv; a JSON run carries them in its body",
 				ProblemField{Pointer: "query:method", Detail: "not allowed with application/json"})
 		}
+		// A time the contract cannot write back is the client's error, named
+		// before the canonical form (which writes it) is made.
+		if err := lab.CheckTimestamp(lab.InBody, "/acquired_at", req.JSONBody.AcquiredAt.Time); err != nil {
+			return nil, "", nil, err
+		}
 		canon, err := json.Marshal(req.JSONBody) // canonical: the same run hashes the same whatever its spacing
 		if err != nil {
 			return nil, "", nil, fmt.Errorf("api: hash run: %w", err)

@@ -31,7 +31,7 @@ func TestQCStateSurvivesRevision(t *testing.T) {
 	ccv := func(curve string, minutes int, factor float64) bool {
 		var v struct{ Verification struct{ Passed bool } }
 		qcDecode(t, e.must(201, "POST", "/v1/curves/"+curve+"/verifications", instrument, map[string]any{
-			"level": "CCV-5", "concentration": 5, "responses": []float64{(0.01 + 0.2*5) * factor}, "kind": "continuing", "at": qcStamp(minutes),
+			"level": "CCV-5", "concentration": 5, "responses": []float64{(0.01 + 0.2*5) * factor}, "kind": "continuing", "acquired_at": qcStamp(minutes),
 		}), &v)
 		return v.Verification.Passed
 	}

@@ -35,6 +35,9 @@ type Config struct {
 	// seconds). Zero means the default, AuthFailureBurst; negative turns the
 	// limit off.
 	AuthFailureBurst int
+	// Now is the clock the printable record states as its print time;
+	// nil means time.Now.
+	Now func() time.Time
 }
 
 // DefaultConfig returns the defaults used when a field is zero.

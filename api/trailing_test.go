@@ -39,7 +39,7 @@ func TestTrailingDataRefused(t *testing.T) {
 			return map[string]any{"samples": []map[string]any{{"id": fmt.Sprintf("MX-%d", n), "analyte": "nitrate", "responses": []float64{1.5}, "acquired_at": at}}}
 		}, 201},
 		{"verification", e.admin, curve + "/verifications", func() any {
-			return map[string]any{"level": "CCV", "concentration": 2, "responses": []float64{1.04}, "kind": "continuing", "at": at}
+			return map[string]any{"level": "CCV", "concentration": 2, "responses": []float64{1.04}, "kind": "continuing", "acquired_at": at}
 		}, 201},
 		{"method", e.admin, "/v1/methods", func() any {
 			n++

@@ -97,6 +97,9 @@ type TokenInput struct {
 	// AllowDualRole is the administrator's explicit choice to let one token
 	// both post runs and review curves (runs:write with curves:review).
 	AllowDualRole bool
+	// Owner is the person ("person:<login>") or instrument
+	// ("instrument:<name>") the token belongs to; empty: DefaultOwner's.
+	Owner string
 }
 
 // The rules a new token must satisfy, named in their errors.

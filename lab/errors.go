@@ -18,7 +18,7 @@ const (
 	KindNotFound                // the named thing does not exist (404)
 	KindConflict                // the state forbids it (reviewed twice, key reused) (409)
 	KindUnavailable             // the database cannot be reached now (503)
-	KindForbidden               // the caller may not act on what it names (403)
+	KindForbidden               // the caller may not act on what it names, or the person may not do this: wrong password, locked, disabled, lacking the role (403)
 )
 
 // Error is an error with a kind, an optional JSON pointer to the offending

@@ -35,6 +35,9 @@ type Principal struct {
 	// Instruments binds a machine token to the instruments it may post
 	// for and reach (see access.go); nil for an unbound token.
 	Instruments []string
+	// Owner is the person ("person:<login>") or instrument
+	// ("instrument:<name>") the token belongs to.
+	Owner string
 }
 
 // Has reports whether the principal holds scope (admin holds all).

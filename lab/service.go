@@ -14,6 +14,7 @@ package lab
 import (
 	"context"
 	"slices"
+	"strings"
 	"time"
 )
 
@@ -73,6 +74,7 @@ type Writer interface {
 type Store interface {
 	Reader
 	Writer
+	PeopleStore
 	Topology
 }
 
@@ -80,15 +82,18 @@ type Store interface {
 // Reader's; its writes are its own methods.
 type Service struct {
 	Reader
-	store Writer
-	topo  Topology
-	now   func() time.Time // the receipt clock (WithClock)
-	skew  time.Duration    // how far ahead of receipt a claimed time may lie
+	store  Writer
+	people PeopleStore
+	topo   Topology
+	now    func() time.Time // the receipt clock (WithClock)
+	skew   time.Duration    // how far ahead of receipt a claimed time may lie
+	// People is the lab's setting for accounts and signatures.
+	People PeopleConfig
 }
 
 // NewService returns the rules over st.
 func NewService(st Store, opts ...Option) *Service {
-	s := &Service{Reader: st, store: st, topo: st, now: time.Now, skew: DefaultFutureSkew}
+	s := &Service{Reader: st, store: st, people: st, topo: st, now: time.Now, skew: DefaultFutureSkew}
 	for _, o := range opts {
 		o(s)
 	}
@@ -107,11 +112,26 @@ func (s *Service) DefineMethod(ctx context.Context, p Principal, in MethodInput)
 // IssueToken issues a token on behalf of p and returns its id and its
 // secret, shown only here. The rules are CheckTokenInput's (a runs:write
 // token is bound to instruments; runs:write with curves:review needs the
-// administrator's explicit choice).
+// administrator's explicit choice); the token belongs to in.Owner, or to
+// DefaultOwner's choice, and a disabled person may not own a new one.
 func (s *Service) IssueToken(ctx context.Context, p Principal, in TokenInput) (id, secret string, err error) {
 	in, err = CheckTokenInput(in)
 	if err != nil {
 		return "", "", err
+	}
+	if in.Owner == "" {
+		in.Owner = DefaultOwner(p, in.Name, in.Scopes)
+	} else if err := CheckOwner(in.Owner); err != nil {
+		return "", "", err
+	}
+	if login, ok := strings.CutPrefix(in.Owner, OwnerPerson); ok {
+		person, err := s.people.GetPerson(ctx, login)
+		if err != nil {
+			return "", "", err
+		}
+		if person.DisabledAt != nil {
+			return "", "", FieldError("/owner", "%s is disabled", login)
+		}
 	}
 	return s.store.IssueToken(ctx, in, p.Actor())
 }
@@ -139,7 +159,7 @@ func (s *Service) Review(ctx context.Context, p Principal, id, decision, reason 
 // the rules (the curve is current, fitted, not rejected, and the standard
 // measured after it) are checked with the curve locked.
 func (s *Service) Verify(ctx context.Context, p Principal, in VerificationInput) (*Verification, error) {
-	if err := s.checkClaimed(InBody, "/at", in.At, s.now()); err != nil {
+	if err := s.checkClaimed(InBody, "/acquired_at", in.At, s.now()); err != nil {
 		return nil, err
 	}
 	in.Actor = p.Actor()

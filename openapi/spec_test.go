@@ -87,11 +87,23 @@ func TestRoutes(t *testing.T) {
 		"POST /v1/runs/{id}/samples",
 		"POST /v1/standard-materials",
 		"POST /v1/tokens",
+		// people and signatures
+		"GET /v1/audit",
+		"GET /v1/curves/{id}/record.pdf",
+		"GET /v1/curves/{id}/signatures",
+		"GET /v1/people",
+		"POST /v1/curves/{id}/recalculation",
+		"POST /v1/curves/{id}/signatures",
+		"POST /v1/people",
+		"POST /v1/people/{login}/disable",
+		"POST /v1/people/{login}/unlock",
+		"POST /v1/signatures/{id}/withdrawal",
 	}
 	var got []string
 	for _, o := range operations(load(t)) {
 		got = append(got, o.String())
 	}
+	sort.Strings(want) // the people routes are listed as a block
 	if !slices.Equal(got, want) {
 		t.Errorf("routes:\n got %q\nwant %q", got, want)
 	}

@@ -300,62 +300,70 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 	if status == "" {
 		return nil, lab.FieldError("/decision", "decision must be %q or %q", lab.DecisionApprove, lab.DecisionReject)
 	}
-	reason = strings.TrimSpace(reason)
 	var rv *lab.Review
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
-		var current, verdict string
-		err := tx.QueryRow(ctx, `SELECT status, verdict FROM curves WHERE id = $1 FOR UPDATE`, id).Scan(&current, &verdict)
-		if errors.Is(err, pgx.ErrNoRows) {
-			return lab.Errorf(lab.KindNotFound, "curve %s not found", id)
-		}
-		if err != nil {
-			return classify("select curve "+id, err)
-		}
-		if current != lab.StatusPendingReview {
-			return lab.Errorf(lab.KindConflict, "curve %s was already reviewed: it is %s", id, current)
-		}
-		facts, err := loadReviewFacts(ctx, tx, id)
-		if err != nil {
-			return err
-		}
-		if err := lab.CheckReview(*facts, actor); err != nil {
-			return err
-		}
-		if decision == lab.DecisionApprove && verdict == lab.VerdictFail && reason == "" {
-			return lab.FieldError("/reason", "a curve that failed its acceptance checks can be approved only with a reason")
-		}
-		rv = &lab.Review{CurveID: id, Decision: decision, Reason: reason, Actor: actor}
-		err = tx.QueryRow(ctx, `INSERT INTO reviews (curve_id, decision, reason, actor) VALUES ($1, $2, $3, $4) RETURNING at`,
-			id, decision, reason, actor).Scan(&rv.At)
-		if err != nil {
-			if pgCode(err) == codeUniqueViolation {
-				return &lab.Error{Kind: lab.KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
-			}
-			return classify("insert review", err)
-		}
-		_, err = tx.Exec(ctx, `UPDATE curves SET status = $2, reviewed_at = $3, reviewed_by = $4 WHERE id = $1`,
-			id, status, rv.At, actor)
-		if err != nil {
-			if pgCode(err) == codeImmutable {
-				return &lab.Error{Kind: lab.KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
-			}
-			return classify("update curve status", err)
-		}
-		if err := writeAudit(ctx, tx, actor, ActionCurveReview, entityCurve, id, map[string]any{
-			"decision": decision, "reason": reason, "from": current, "to": status, "verdict": verdict,
-		}); err != nil {
-			return err
-		}
-		// The curve's results move with its review (provisional to
-		// releasable or withheld), in this transaction.
-		events := &eventBuffer{}
-		if _, err := refreshCurveResults(ctx, tx, id, lab.CauseReview, events); err != nil {
-			return err
-		}
-		return flushEvents(ctx, tx, events)
+		rv, err = reviewCurveTx(ctx, tx, id, decision, status, reason, actor)
+		return err
 	})
 	if err != nil {
 		return nil, classify("review curve "+id, err)
 	}
 	return rv, nil
+}
+
+// reviewCurveTx is ReviewCurve's transition inside tx: the one review, the
+// status, its audit row and the results' release states.
+func reviewCurveTx(ctx context.Context, tx pgx.Tx, id, decision, status, reason, actor string) (*lab.Review, error) {
+	reason = strings.TrimSpace(reason)
+	var rv *lab.Review
+	var current, verdict string
+	err := tx.QueryRow(ctx, `SELECT status, verdict FROM curves WHERE id = $1 FOR UPDATE`, id).Scan(&current, &verdict)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return nil, lab.Errorf(lab.KindNotFound, "curve %s not found", id)
+	}
+	if err != nil {
+		return nil, classify("select curve "+id, err)
+	}
+	if current != lab.StatusPendingReview {
+		return nil, lab.Errorf(lab.KindConflict, "curve %s was already reviewed: it is %s", id, current)
+	}
+	facts, err := loadReviewFacts(ctx, tx, id)
+	if err != nil {
+		return nil, err
+	}
+	if err := lab.CheckReview(*facts, actor); err != nil {
+		return nil, err
+	}
+	if decision == lab.DecisionApprove && verdict == lab.VerdictFail && reason == "" {
+		return nil, lab.FieldError("/reason", "a curve that failed its acceptance checks can be approved only with a reason")
+	}
+	rv = &lab.Review{CurveID: id, Decision: decision, Reason: reason, Actor: actor}
+	err = tx.QueryRow(ctx, `INSERT INTO reviews (curve_id, decision, reason, actor) VALUES ($1, $2, $3, $4) RETURNING at`,
+		id, decision, reason, actor).Scan(&rv.At)
+	if err != nil {
+		if pgCode(err) == codeUniqueViolation {
+			return nil, &lab.Error{Kind: lab.KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
+		}
+		return nil, classify("insert review", err)
+	}
+	_, err = tx.Exec(ctx, `UPDATE curves SET status = $2, reviewed_at = $3, reviewed_by = $4 WHERE id = $1`,
+		id, status, rv.At, actor)
+	if err != nil {
+		if pgCode(err) == codeImmutable {
+			return nil, &lab.Error{Kind: lab.KindConflict, Message: fmt.Sprintf("curve %s was already reviewed", id), Err: err}
+		}
+		return nil, classify("update curve status", err)
+	}
+	if err := writeAudit(ctx, tx, actor, ActionCurveReview, entityCurve, id, map[string]any{
+		"decision": decision, "reason": reason, "from": current, "to": status, "verdict": verdict,
+	}); err != nil {
+		return nil, err
+	}
+	// The curve's results move with its review (provisional to
+	// releasable or withheld), in this transaction.
+	events := &eventBuffer{}
+	if _, err := refreshCurveResults(ctx, tx, id, lab.CauseReview, events); err != nil {
+		return nil, err
+	}
+	return rv, flushEvents(ctx, tx, events)
 }

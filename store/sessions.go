@@ -58,10 +58,11 @@ func (db *DB) CreateSession(ctx context.Context, tokenSecret string, ttl time.Du
 func (db *DB) LookupSession(ctx context.Context, secret string) (lab.Session, error) {
 	var s lab.Session
 	err := db.Pool.QueryRow(ctx, `
-SELECT t.id, t.name, t.scopes, s.expires_at
+SELECT t.id, t.name, t.scopes, t.owner, s.expires_at
 FROM ui_sessions s JOIN tokens t ON t.id = s.token_id
-WHERE s.id_hash = $1 AND s.expires_at > now() AND t.revoked_at IS NULL`, hashSecret(secret)).
-		Scan(&s.Token.TokenID, &s.Token.Name, &s.Token.Scopes, &s.ExpiresAt)
+WHERE s.id_hash = $1 AND s.expires_at > now() AND t.revoked_at IS NULL
+  AND NOT EXISTS (SELECT 1 FROM people p WHERE t.owner LIKE 'person:%' AND p.login = substr(t.owner, 8) AND p.disabled_at IS NOT NULL)`, hashSecret(secret)).
+		Scan(&s.Token.TokenID, &s.Token.Name, &s.Token.Scopes, &s.Token.Owner, &s.ExpiresAt)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return lab.Session{}, lab.Errorf(lab.KindNotFound, "no such session")
 	}

@@ -120,8 +120,10 @@ func (l *tokenLookups) run(batch []*tokenLookup) {
 //     subquery, which neither plan can see into;
 //   - a NULL curve id: the custom plan folds the curve subquery away. A
 //     question without a curve has its own statement without it.
+//
+// A token of a disabled person counts as revoked from the disabling on.
 const sqlTokenLookups = `
-SELECT q.i, t.id, t.name, t.scopes, t.instruments, t.hash, t.revoked_at,
+SELECT q.i, t.id, t.name, t.scopes, t.instruments, t.owner, t.hash, COALESCE(t.revoked_at, (SELECT p.disabled_at FROM people p WHERE t.owner LIKE 'person:%' AND p.login = substr(t.owner, 8))),
        (SELECT c.status FROM curves c WHERE c.id = q.curve::uuid)
 FROM unnest((SELECT $1::bytea[]), (SELECT $2::text[])) WITH ORDINALITY AS q(hash, curve, i)
 JOIN tokens t ON t.hash = q.hash`
@@ -130,10 +132,10 @@ JOIN tokens t ON t.hash = q.hash`
 // curve, sqlTokenLookupOneCurve for one with a curve.
 const (
 	sqlTokenLookupOne = `
-SELECT 1::bigint, t.id, t.name, t.scopes, t.instruments, t.hash, t.revoked_at, NULL::text
+SELECT 1::bigint, t.id, t.name, t.scopes, t.instruments, t.owner, t.hash, COALESCE(t.revoked_at, (SELECT p.disabled_at FROM people p WHERE t.owner LIKE 'person:%' AND p.login = substr(t.owner, 8))), NULL::text
 FROM tokens t WHERE t.hash = $1`
 	sqlTokenLookupOneCurve = `
-SELECT 1::bigint, t.id, t.name, t.scopes, t.instruments, t.hash, t.revoked_at,
+SELECT 1::bigint, t.id, t.name, t.scopes, t.instruments, t.owner, t.hash, COALESCE(t.revoked_at, (SELECT p.disabled_at FROM people p WHERE t.owner LIKE 'person:%' AND p.login = substr(t.owner, 8))),
        (SELECT c.status FROM curves c WHERE c.id = $2::uuid)
 FROM tokens t WHERE t.hash = $1`
 )
@@ -188,7 +190,7 @@ func (l *tokenLookups) answer(batch []*tokenLookup) {
 				i int64
 				a tokenLookup
 			)
-			if err := rows.Scan(&i, &a.tok.TokenID, &a.tok.Name, &a.tok.Scopes, &a.tok.Instruments, &a.stored, &a.revokedAt, &a.status); err != nil {
+			if err := rows.Scan(&i, &a.tok.TokenID, &a.tok.Name, &a.tok.Scopes, &a.tok.Instruments, &a.tok.Owner, &a.stored, &a.revokedAt, &a.status); err != nil {
 				return err
 			}
 			if i < 1 || int(i) > len(first) {

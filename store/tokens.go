@@ -41,16 +41,23 @@ func newSecret() (string, error) {
 	return TokenPrefix + base64.RawURLEncoding.EncodeToString(b), nil
 }
 
-// CreateToken issues an unbound token with the given name and scopes and
-// returns its id and its secret (the bootstrap's and the tests' way; the
-// administrators' route goes through lab.Service.IssueToken, which applies
-// lab.CheckTokenInput). The creation is audited under actor.
+// CreateToken issues a token with the given name and scopes and returns its id
+// and its secret. The secret is returned only here; the database keeps its
+// SHA-256. The creation is audited under actor. The token belongs to the
+// owner lab.DefaultOwner gives (the instrument of its name for runs:write
+// alone, else actor).
 func (db *DB) CreateToken(ctx context.Context, name string, scopes []string, actor string) (id, secret string, err error) {
+	return db.CreateOwnedToken(ctx, name, scopes, lab.DefaultOwner(lab.Principal{}, name, scopes), actor)
+}
+
+// CreateOwnedToken is CreateToken for a token that belongs to owner
+// ("person:<login>", "instrument:<name>").
+func (db *DB) CreateOwnedToken(ctx context.Context, name string, scopes []string, owner, actor string) (id, secret string, err error) {
 	scopes, err = lab.CheckToken(name, scopes)
 	if err != nil {
 		return "", "", err
 	}
-	return db.IssueToken(ctx, lab.TokenInput{Name: name, Scopes: scopes}, actor)
+	return db.IssueToken(ctx, lab.TokenInput{Name: name, Scopes: scopes, Owner: owner}, actor)
 }
 
 // IssueToken stores token in (checked by the caller) and returns its id and
@@ -64,12 +71,12 @@ func (db *DB) IssueToken(ctx context.Context, in lab.TokenInput, actor string) (
 		return "", "", err
 	}
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
-		_, err := tx.Exec(ctx, `INSERT INTO tokens (id, name, scopes, hash, created_by, instruments, allow_dual_role) VALUES ($1, $2, $3, $4, $5, $6, $7)`,
-			id, in.Name, in.Scopes, hashSecret(secret), actor, in.Instruments, in.AllowDualRole)
+		_, err := tx.Exec(ctx, `INSERT INTO tokens (id, name, scopes, hash, created_by, instruments, allow_dual_role, owner) VALUES ($1, $2, $3, $4, $5, $6, $7, $8)`,
+			id, in.Name, in.Scopes, hashSecret(secret), actor, in.Instruments, in.AllowDualRole, in.Owner)
 		if err != nil {
 			return classify("insert token", err)
 		}
-		detail := map[string]any{"name": in.Name, "scopes": in.Scopes}
+		detail := map[string]any{"name": in.Name, "scopes": in.Scopes, "owner": in.Owner}
 		if in.Instruments != nil {
 			detail["instruments"] = in.Instruments
 		}
@@ -147,9 +154,9 @@ func (db *DB) EnsureToken(ctx context.Context, name, secret string, scopes []str
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
 		created = false
 		err := tx.QueryRow(ctx, `
-INSERT INTO tokens (id, name, scopes, hash, created_by) VALUES ($1, $2, $3, $4, 'bootstrap')
+INSERT INTO tokens (id, name, scopes, hash, created_by, owner) VALUES ($1, $2, $3, $4, 'bootstrap', $5)
 ON CONFLICT (hash) DO NOTHING
-RETURNING id`, newTokenID, name, scopes, hash).Scan(&id)
+RETURNING id`, newTokenID, name, scopes, hash, lab.DefaultOwner(lab.Principal{Name: "bootstrap"}, name, scopes)).Scan(&id)
 		if errors.Is(err, pgx.ErrNoRows) {
 			err = tx.QueryRow(ctx, `SELECT id FROM tokens WHERE hash = $1`, hash).Scan(&id)
 			return classify("select bootstrap token", err)

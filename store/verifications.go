@@ -33,7 +33,7 @@ func (db *DB) CreateVerification(ctx context.Context, in lab.VerificationInput) 
 	if strings.TrimSpace(in.Level) == "" {
 		return nil, lab.FieldError("/level", "level is required")
 	}
-	if err := lab.CheckTimestamp(lab.InBody, "/at", in.At); err != nil {
+	if err := lab.CheckTimestamp(lab.InBody, "/acquired_at", in.At); err != nil {
 		return nil, err
 	}
 	id, err := newID()
@@ -67,7 +67,7 @@ WHERE c.id = $1 FOR UPDATE OF c`, curveID).Scan(&status, &verdict, &acquired, &r
 		case revision != nil:
 			return lab.ParamError(lab.KindConflict, lab.InPath, "id", "rule %s: curve %s was superseded by its revision %s; verify against the revision", lab.RuleCurveIsCurrent, curveID, *revision)
 		case in.At.Before(acquired):
-			return lab.FieldError("/at", "rule %s: a verification is measured after its calibration (curve acquired at %s)", lab.RuleAfterCalibration, acquired.UTC().Format(time.RFC3339))
+			return lab.FieldError("/acquired_at", "rule %s: a verification is measured after its calibration (curve acquired at %s)", lab.RuleAfterCalibration, acquired.UTC().Format(time.RFC3339))
 		}
 		rep := new(calib.Report)
 		if err := json.Unmarshal(raw, rep); err != nil {

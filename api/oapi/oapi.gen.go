@@ -313,6 +313,30 @@ func (e Model) Valid() bool {
 	}
 }
 
+// Defines values for PersonRequestRoles.
+const (
+	Administrator PersonRequestRoles = "administrator"
+	Analyst       PersonRequestRoles = "analyst"
+	QaApprover    PersonRequestRoles = "qa-approver"
+	Reviewer      PersonRequestRoles = "reviewer"
+)
+
+// Valid indicates whether the value is a known member of the PersonRequestRoles enum.
+func (e PersonRequestRoles) Valid() bool {
+	switch e {
+	case Administrator:
+		return true
+	case Analyst:
+		return true
+	case QaApprover:
+		return true
+	case Reviewer:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for ReadinessMode.
 const (
 	ModeReadOnly  ReadinessMode = "read-only"
@@ -502,6 +526,63 @@ func (e SigmaBasis) Valid() bool {
 	case SigmaBasisLowestLevelSd:
 		return true
 	case SigmaBasisResidualSd:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for SignatureMeaning.
+const (
+	SignatureMeaningApproval       SignatureMeaning = "approval"
+	SignatureMeaningResponsibility SignatureMeaning = "responsibility"
+	SignatureMeaningReview         SignatureMeaning = "review"
+)
+
+// Valid indicates whether the value is a known member of the SignatureMeaning enum.
+func (e SignatureMeaning) Valid() bool {
+	switch e {
+	case SignatureMeaningApproval:
+		return true
+	case SignatureMeaningResponsibility:
+		return true
+	case SignatureMeaningReview:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for SignatureRequestDecision.
+const (
+	Approve SignatureRequestDecision = "approve"
+	Reject  SignatureRequestDecision = "reject"
+)
+
+// Valid indicates whether the value is a known member of the SignatureRequestDecision enum.
+func (e SignatureRequestDecision) Valid() bool {
+	switch e {
+	case Approve:
+		return true
+	case Reject:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for SignatureRequestMeaning.
+const (
+	SignatureRequestMeaningApproval SignatureRequestMeaning = "approval"
+	SignatureRequestMeaningReview   SignatureRequestMeaning = "review"
+)
+
+// Valid indicates whether the value is a known member of the SignatureRequestMeaning enum.
+func (e SignatureRequestMeaning) Valid() bool {
+	switch e {
+	case SignatureRequestMeaningApproval:
+		return true
+	case SignatureRequestMeaningReview:
 		return true
 	default:
 		return false
@@ -1302,6 +1383,9 @@ type Limits struct {
 	SigmaBasis *SigmaBasis `json:"sigma_basis,omitempty"`
 }
 
+// Login A person's login.
+type Login = string
+
 // Method defines model for Method.
 type Method struct {
 	// Acceptance Every threshold in force, defaults filled in.
@@ -1466,6 +1550,36 @@ type NextCursor = string
 // Operator Who ran the instrument; an identifier that may also hold `@`.
 type Operator = string
 
+// Person defines model for Person.
+type Person struct {
+	CreatedAt      Timestamp  `json:"created_at"`
+	Disabled       bool       `json:"disabled"`
+	DisabledAt     *Timestamp `json:"disabled_at,omitempty"`
+	FailedAttempts int        `json:"failed_attempts"`
+	FullName       string     `json:"full_name"`
+	Locked         bool       `json:"locked"`
+	Login          string     `json:"login"`
+	Roles          []string   `json:"roles"`
+}
+
+// PersonList defines model for PersonList.
+type PersonList struct {
+	People []Person `json:"people"`
+}
+
+// PersonRequest defines model for PersonRequest.
+type PersonRequest struct {
+	FullName string `json:"full_name"`
+
+	// Login A person's login.
+	Login    Login                `json:"login"`
+	Password string               `json:"password"`
+	Roles    []PersonRequestRoles `json:"roles"`
+}
+
+// PersonRequestRoles defines model for PersonRequest.Roles.
+type PersonRequestRoles string
+
 // PredictionRequest defines model for PredictionRequest.
 type PredictionRequest struct {
 	// Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
@@ -1617,6 +1731,21 @@ type ReadinessMode string
 
 // ReadinessStatus defines model for Readiness.Status.
 type ReadinessStatus string
+
+// Recalculation defines model for Recalculation.
+type Recalculation struct {
+	Carried     []string `json:"carried"`
+	CurveID     UUID     `json:"curve_id"`
+	Differences []struct {
+		// Field JSON pointer into the report.
+		Field        string `json:"field"`
+		Recalculated string `json:"recalculated"`
+		Stored       string `json:"stored"`
+	} `json:"differences"`
+	Identical     bool   `json:"identical"`
+	RunningEngine string `json:"running_engine"`
+	StoredEngine  string `json:"stored_engine"`
+}
 
 // ReleaseState `provisional` while the curve awaits review; `releasable` once it is
 // approved and no verification failed before the sample; `withheld`
@@ -2059,6 +2188,61 @@ type SequenceRecordState string
 // `lowest_level_sd`.
 type SigmaBasis string
 
+// Signature defines model for Signature.
+type Signature struct {
+	// ContentMatches Whether the record's current content still has that hash.
+	ContentMatches bool `json:"content_matches"`
+
+	// ContentSha256 SHA-256 (hex) of the canonical JSON of the record as signed.
+	ContentSha256 string  `json:"content_sha256"`
+	Decision      *string `json:"decision,omitempty"`
+	ID            UUID    `json:"id"`
+	Login         string  `json:"login"`
+
+	// Manifestation Printed name, meaning, UTC and local time, as every human-readable view shows it.
+	Manifestation string           `json:"manifestation"`
+	Meaning       SignatureMeaning `json:"meaning"`
+	PrintedName   string           `json:"printed_name"`
+	Reason        *string          `json:"reason,omitempty"`
+	RecordID      string           `json:"record_id"`
+	RecordType    string           `json:"record_type"`
+
+	// SignedAt UTC.
+	SignedAt Timestamp `json:"signed_at"`
+
+	// SignedAtLocal The same instant in the lab's time zone, RFC 3339 with the zone's offset to the second (the one time in a response not given in UTC: it is the manifestation a person reads).
+	SignedAtLocal    string     `json:"signed_at_local"`
+	TimeZone         string     `json:"time_zone"`
+	WithdrawalReason *string    `json:"withdrawal_reason,omitempty"`
+	WithdrawnAt      *Timestamp `json:"withdrawn_at,omitempty"`
+	WithdrawnBy      *string    `json:"withdrawn_by,omitempty"`
+}
+
+// SignatureMeaning defines model for Signature.Meaning.
+type SignatureMeaning string
+
+// SignatureList defines model for SignatureList.
+type SignatureList struct {
+	Signatures []Signature `json:"signatures"`
+}
+
+// SignatureRequest defines model for SignatureRequest.
+type SignatureRequest struct {
+	Decision *SignatureRequestDecision `json:"decision,omitempty"`
+
+	// Login A person's login.
+	Login    Login                   `json:"login"`
+	Meaning  SignatureRequestMeaning `json:"meaning"`
+	Password string                  `json:"password"`
+	Reason   *string                 `json:"reason,omitempty"`
+}
+
+// SignatureRequestDecision defines model for SignatureRequest.Decision.
+type SignatureRequestDecision string
+
+// SignatureRequestMeaning defines model for SignatureRequest.Meaning.
+type SignatureRequestMeaning string
+
 // Standard defines model for Standard.
 type Standard struct {
 	Analyte       string    `json:"analyte"`
@@ -2178,8 +2362,13 @@ type TokenRequest struct {
 	Instruments *[]Identifier `json:"instruments,omitempty"`
 
 	// Name Who or what will use the token; shown as the actor in the audit trail.
-	Name   Identifier `json:"name"`
-	Scopes []Scope    `json:"scopes"`
+	Name Identifier `json:"name"`
+
+	// Owner Whom the token belongs to: `person:<login>` or `instrument:<name>`.
+	// Default: the instrument of the token's name for a `runs:write`
+	// token alone, else the person whose token issues it.
+	Owner  *string `json:"owner,omitempty"`
+	Scopes []Scope `json:"scopes"`
 }
 
 // Trend defines model for Trend.
@@ -2428,6 +2617,14 @@ type WeightingOptionsInput struct {
 	MinReplicates *int `json:"min_replicates,omitempty"`
 }
 
+// WithdrawalRequest defines model for WithdrawalRequest.
+type WithdrawalRequest struct {
+	// Login A person's login.
+	Login    Login  `json:"login"`
+	Password string `json:"password"`
+	Reason   string `json:"reason"`
+}
+
 // CurveID defines model for CurveID.
 type CurveID = UUID
 
@@ -2475,6 +2672,14 @@ type UnprocessableEntity = Problem
 
 // UnsupportedMediaType RFC 9457 problem details.
 type UnsupportedMediaType = Problem
+
+// SearchAuditParams defines parameters for SearchAudit.
+type SearchAuditParams struct {
+	Person     *Login  `form:"person,omitempty" json:"person,omitempty"`
+	RecordType *string `form:"record_type,omitempty" json:"record_type,omitempty"`
+	RecordID   *string `form:"record_id,omitempty" json:"record_id,omitempty"`
+	Limit      *int    `form:"limit,omitempty" json:"limit,omitempty"`
+}
 
 // ListCurvesParams defines parameters for ListCurves.
 type ListCurvesParams struct {
@@ -2580,6 +2785,9 @@ type CreatePredictionsJSONRequestBody = PredictionRequest
 // ReviewCurveJSONRequestBody defines body for ReviewCurve for application/json ContentType.
 type ReviewCurveJSONRequestBody = ReviewRequest
 
+// SignCurveJSONRequestBody defines body for SignCurve for application/json ContentType.
+type SignCurveJSONRequestBody = SignatureRequest
+
 // CreateVerificationJSONRequestBody defines body for CreateVerification for application/json ContentType.
 type CreateVerificationJSONRequestBody = VerificationRequest
 
@@ -2589,11 +2797,17 @@ type CreateInstrumentPredictionsJSONRequestBody = InstrumentPredictionRequest
 // CreateMethodJSONRequestBody defines body for CreateMethod for application/json ContentType.
 type CreateMethodJSONRequestBody = MethodRequest
 
+// CreatePersonJSONRequestBody defines body for CreatePerson for application/json ContentType.
+type CreatePersonJSONRequestBody = PersonRequest
+
 // CreateRunJSONRequestBody defines body for CreateRun for application/json ContentType.
 type CreateRunJSONRequestBody = RunRequest
 
 // CreateRunSamplesJSONRequestBody defines body for CreateRunSamples for application/json ContentType.
 type CreateRunSamplesJSONRequestBody = SamplesRequest
+
+// WithdrawSignatureJSONRequestBody defines body for WithdrawSignature for application/json ContentType.
+type WithdrawSignatureJSONRequestBody = WithdrawalRequest
 
 // CreateStandardMaterialJSONRequestBody defines body for CreateStandardMaterial for application/json ContentType.
 type CreateStandardMaterialJSONRequestBody = StandardMaterialRequest
@@ -2615,6 +2829,9 @@ type ServerInterface interface {
 	// GetReadyz Readiness
 	// (GET /readyz)
 	GetReadyz(ctx echo.Context) error
+	// SearchAudit Search the audit trail by person and by record
+	// (GET /v1/audit)
+	SearchAudit(ctx echo.Context, params SearchAuditParams) error
 	// ListCurves Curve history
 	// (GET /v1/curves)
 	ListCurves(ctx echo.Context, params ListCurvesParams) error
@@ -2636,9 +2853,21 @@ type ServerInterface interface {
 	// CreatePredictions Concentrations of unknowns
 	// (POST /v1/curves/{id}/predictions)
 	CreatePredictions(ctx echo.Context, id CurveID) error
+	// RecalculateCurve Recalculate a curve from its stored raw readings
+	// (POST /v1/curves/{id}/recalculation)
+	RecalculateCurve(ctx echo.Context, id CurveID) error
+	// GetCurveRecordPDF The printable calibration record
+	// (GET /v1/curves/{id}/record.pdf)
+	GetCurveRecordPDF(ctx echo.Context, id CurveID) error
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
 	ReviewCurve(ctx echo.Context, id CurveID) error
+	// ListCurveSignatures Signatures of a curve
+	// (GET /v1/curves/{id}/signatures)
+	ListCurveSignatures(ctx echo.Context, id CurveID) error
+	// SignCurve Sign a curve
+	// (POST /v1/curves/{id}/signatures)
+	SignCurve(ctx echo.Context, id CurveID) error
 	// ListVerifications Verification standards of a curve
 	// (GET /v1/curves/{id}/verifications)
 	ListVerifications(ctx echo.Context, id CurveID) error
@@ -2660,6 +2889,18 @@ type ServerInterface interface {
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx echo.Context, name Identifier, params GetMethodParams) error
+	// ListPeople List people
+	// (GET /v1/people)
+	ListPeople(ctx echo.Context) error
+	// CreatePerson Open an account
+	// (POST /v1/people)
+	CreatePerson(ctx echo.Context) error
+	// DisablePerson Disable a person
+	// (POST /v1/people/{login}/disable)
+	DisablePerson(ctx echo.Context, login Login) error
+	// UnlockPerson Unlock a person
+	// (POST /v1/people/{login}/unlock)
+	UnlockPerson(ctx echo.Context, login Login) error
 	// ListResultEvents Change feed of sample results
 	// (GET /v1/results)
 	ListResultEvents(ctx echo.Context, params ListResultEventsParams) error
@@ -2678,6 +2919,9 @@ type ServerInterface interface {
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx echo.Context, sampleID Identifier) error
+	// WithdrawSignature Withdraw a signature
+	// (POST /v1/signatures/{id}/withdrawal)
+	WithdrawSignature(ctx echo.Context, id UUID) error
 	// ListStandardMaterials All standard materials
 	// (GET /v1/standard-materials)
 	ListStandardMaterials(ctx echo.Context) error
@@ -2739,6 +2983,45 @@ func (w *ServerInterfaceWrapper) GetReadyz(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.GetReadyz(ctx)
+	return err
+}
+
+// SearchAudit converts echo context to params.
+func (w *ServerInterfaceWrapper) SearchAudit(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params SearchAuditParams
+	// ------------- Optional query parameter "person" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "person", ctx.QueryParams(), &params.Person, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter person: %s", err))
+	}
+
+	// ------------- Optional query parameter "record_type" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "record_type", ctx.QueryParams(), &params.RecordType, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter record_type: %s", err))
+	}
+
+	// ------------- Optional query parameter "record_id" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "record_id", ctx.QueryParams(), &params.RecordID, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter record_id: %s", err))
+	}
+
+	// ------------- Optional query parameter "limit" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "limit", ctx.QueryParams(), &params.Limit, runtime.BindQueryParameterOptions{Type: "integer", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter limit: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.SearchAudit(ctx, params)
 	return err
 }
 
@@ -2912,6 +3195,38 @@ func (w *ServerInterfaceWrapper) CreatePredictions(ctx echo.Context) error {
 	return err
 }
 
+// RecalculateCurve converts echo context to params.
+func (w *ServerInterfaceWrapper) RecalculateCurve(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.RecalculateCurve(ctx, id)
+	return err
+}
+
+// GetCurveRecordPDF converts echo context to params.
+func (w *ServerInterfaceWrapper) GetCurveRecordPDF(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetCurveRecordPDF(ctx, id)
+	return err
+}
+
 // ReviewCurve converts echo context to params.
 func (w *ServerInterfaceWrapper) ReviewCurve(ctx echo.Context) error {
 	var err error
@@ -2925,6 +3240,38 @@ func (w *ServerInterfaceWrapper) ReviewCurve(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.ReviewCurve(ctx, id)
+	return err
+}
+
+// ListCurveSignatures converts echo context to params.
+func (w *ServerInterfaceWrapper) ListCurveSignatures(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListCurveSignatures(ctx, id)
+	return err
+}
+
+// SignCurve converts echo context to params.
+func (w *ServerInterfaceWrapper) SignCurve(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id CurveID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.SignCurve(ctx, id)
 	return err
 }
 
@@ -3048,6 +3395,56 @@ func (w *ServerInterfaceWrapper) GetMethod(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.GetMethod(ctx, name, params)
+	return err
+}
+
+// ListPeople converts echo context to params.
+func (w *ServerInterfaceWrapper) ListPeople(ctx echo.Context) error {
+	var err error
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.ListPeople(ctx)
+	return err
+}
+
+// CreatePerson converts echo context to params.
+func (w *ServerInterfaceWrapper) CreatePerson(ctx echo.Context) error {
+	var err error
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreatePerson(ctx)
+	return err
+}
+
+// DisablePerson converts echo context to params.
+func (w *ServerInterfaceWrapper) DisablePerson(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "login" -------------
+	var login Login
+
+	err = runtime.BindStyledParameterWithOptions("simple", "login", ctx.Param("login"), &login, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter login: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.DisablePerson(ctx, login)
+	return err
+}
+
+// UnlockPerson converts echo context to params.
+func (w *ServerInterfaceWrapper) UnlockPerson(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "login" -------------
+	var login Login
+
+	err = runtime.BindStyledParameterWithOptions("simple", "login", ctx.Param("login"), &login, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter login: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.UnlockPerson(ctx, login)
 	return err
 }
 
@@ -3193,6 +3590,22 @@ func (w *ServerInterfaceWrapper) GetSampleResults(ctx echo.Context) error {
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.GetSampleResults(ctx, sampleID)
+	return err
+}
+
+// WithdrawSignature converts echo context to params.
+func (w *ServerInterfaceWrapper) WithdrawSignature(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "id" -------------
+	var id UUID
+
+	err = runtime.BindStyledParameterWithOptions("simple", "id", ctx.Param("id"), &id, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "uuid", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.WithdrawSignature(ctx, id)
 	return err
 }
 
@@ -3440,6 +3853,16 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/standard-materials/:code", wrapper.GetStandardMaterial, options.OperationMiddlewares["getStandardMaterial"]...)
 	router.POST(options.BaseURL+"/v1/tokens", wrapper.CreateToken, options.OperationMiddlewares["createToken"]...)
 	router.DELETE(options.BaseURL+"/v1/tokens/:id", wrapper.DeleteToken, options.OperationMiddlewares["deleteToken"]...)
+	router.GET(options.BaseURL+"/v1/people", wrapper.ListPeople, options.OperationMiddlewares["listPeople"]...)
+	router.POST(options.BaseURL+"/v1/people", wrapper.CreatePerson, options.OperationMiddlewares["createPerson"]...)
+	router.POST(options.BaseURL+"/v1/people/:login/disable", wrapper.DisablePerson, options.OperationMiddlewares["disablePerson"]...)
+	router.POST(options.BaseURL+"/v1/people/:login/unlock", wrapper.UnlockPerson, options.OperationMiddlewares["unlockPerson"]...)
+	router.GET(options.BaseURL+"/v1/curves/:id/signatures", wrapper.ListCurveSignatures, options.OperationMiddlewares["listCurveSignatures"]...)
+	router.POST(options.BaseURL+"/v1/curves/:id/signatures", wrapper.SignCurve, options.OperationMiddlewares["signCurve"]...)
+	router.GET(options.BaseURL+"/v1/curves/:id/record.pdf", wrapper.GetCurveRecordPDF, options.OperationMiddlewares["getCurveRecordPDF"]...)
+	router.POST(options.BaseURL+"/v1/curves/:id/recalculation", wrapper.RecalculateCurve, options.OperationMiddlewares["recalculateCurve"]...)
+	router.GET(options.BaseURL+"/v1/audit", wrapper.SearchAudit, options.OperationMiddlewares["searchAudit"]...)
+	router.POST(options.BaseURL+"/v1/signatures/:id/withdrawal", wrapper.WithdrawSignature, options.OperationMiddlewares["withdrawSignature"]...)
 
 }
 
@@ -3642,6 +4065,127 @@ type GetReadyz503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response GetReadyz503ApplicationProblemPlusJSONResponse) VisitGetReadyzResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAuditRequestObject struct {
+	Params SearchAuditParams
+}
+
+type SearchAuditResponseObject interface {
+	VisitSearchAuditResponse(w http.ResponseWriter) error
+}
+
+type SearchAudit200JSONResponse AuditLog
+
+func (response SearchAudit200JSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAudit400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response SearchAudit400ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAudit401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response SearchAudit401ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAudit403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response SearchAudit403ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAudit429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response SearchAudit429ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAudit500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response SearchAudit500ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SearchAudit503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response SearchAudit503ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -4747,6 +5291,286 @@ func (response CreatePredictions503ApplicationProblemPlusJSONResponse) VisitCrea
 	return err
 }
 
+type RecalculateCurveRequestObject struct {
+	ID CurveID `json:"id"`
+}
+
+type RecalculateCurveResponseObject interface {
+	VisitRecalculateCurveResponse(w http.ResponseWriter) error
+}
+
+type RecalculateCurve200JSONResponse Recalculation
+
+func (response RecalculateCurve200JSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve400ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve401ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve403ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve404ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve429ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve500ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type RecalculateCurve503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response RecalculateCurve503ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDFRequestObject struct {
+	ID CurveID `json:"id"`
+}
+
+type GetCurveRecordPDFResponseObject interface {
+	VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error
+}
+
+type GetCurveRecordPDF200ApplicationPdfResponse struct {
+	Body          io.Reader
+	ContentLength int64
+}
+
+func (response GetCurveRecordPDF200ApplicationPdfResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	w.Header().Set("Content-Type", "application/pdf")
+	if response.ContentLength != 0 {
+		w.Header().Set("Content-Length", fmt.Sprint(response.ContentLength))
+	}
+	w.WriteHeader(200)
+
+	if closer, ok := response.Body.(io.ReadCloser); ok {
+		defer closer.Close()
+	}
+	_, err := io.Copy(w, response.Body)
+	return err
+}
+
+type GetCurveRecordPDF400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF400ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDF401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF401ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDF403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF403ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDF404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF404ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDF429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF429ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDF500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF500ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetCurveRecordPDF503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetCurveRecordPDF503ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type ReviewCurveRequestObject struct {
 	ID   CurveID `json:"id"`
 	Body *ReviewCurveJSONRequestBody
@@ -4937,6 +5761,345 @@ type ReviewCurve503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response ReviewCurve503ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignaturesRequestObject struct {
+	ID CurveID `json:"id"`
+}
+
+type ListCurveSignaturesResponseObject interface {
+	VisitListCurveSignaturesResponse(w http.ResponseWriter) error
+}
+
+type ListCurveSignatures200JSONResponse SignatureList
+
+func (response ListCurveSignatures200JSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures400ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures401ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures403ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures404ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures429ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures500ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListCurveSignatures503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListCurveSignatures503ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurveRequestObject struct {
+	ID   CurveID `json:"id"`
+	Body *SignCurveJSONRequestBody
+}
+
+type SignCurveResponseObject interface {
+	VisitSignCurveResponse(w http.ResponseWriter) error
+}
+
+type SignCurve201JSONResponse Signature
+
+func (response SignCurve201JSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve400ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve401ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve403ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve404ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve409ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve413ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve415ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve422ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve429ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve500ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type SignCurve503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response SignCurve503ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -6093,6 +7256,585 @@ func (response GetMethod503ApplicationProblemPlusJSONResponse) VisitGetMethodRes
 	return err
 }
 
+type ListPeopleRequestObject struct {
+}
+
+type ListPeopleResponseObject interface {
+	VisitListPeopleResponse(w http.ResponseWriter) error
+}
+
+type ListPeople200JSONResponse PersonList
+
+func (response ListPeople200JSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListPeople400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response ListPeople400ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListPeople401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response ListPeople401ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListPeople403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response ListPeople403ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListPeople429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response ListPeople429ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListPeople500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response ListPeople500ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type ListPeople503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response ListPeople503ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePersonRequestObject struct {
+	Body *CreatePersonJSONRequestBody
+}
+
+type CreatePersonResponseObject interface {
+	VisitCreatePersonResponse(w http.ResponseWriter) error
+}
+
+type CreatePerson201JSONResponse Person
+
+func (response CreatePerson201JSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson400ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson401ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson403ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson409ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson413ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson415ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson422ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson429ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson500ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreatePerson503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreatePerson503ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePersonRequestObject struct {
+	Login Login `json:"login"`
+}
+
+type DisablePersonResponseObject interface {
+	VisitDisablePersonResponse(w http.ResponseWriter) error
+}
+
+type DisablePerson200JSONResponse Person
+
+func (response DisablePerson200JSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson400ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson401ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson403ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson404ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson429ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson500ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type DisablePerson503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response DisablePerson503ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPersonRequestObject struct {
+	Login Login `json:"login"`
+}
+
+type UnlockPersonResponseObject interface {
+	VisitUnlockPersonResponse(w http.ResponseWriter) error
+}
+
+type UnlockPerson200JSONResponse Person
+
+func (response UnlockPerson200JSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson400ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson401ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson403ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson404ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson429ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson500ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type UnlockPerson503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response UnlockPerson503ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type ListResultEventsRequestObject struct {
 	Params ListResultEventsParams
 }
@@ -7066,6 +8808,208 @@ type GetSampleResults503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignatureRequestObject struct {
+	ID   UUID `json:"id"`
+	Body *WithdrawSignatureJSONRequestBody
+}
+
+type WithdrawSignatureResponseObject interface {
+	VisitWithdrawSignatureResponse(w http.ResponseWriter) error
+}
+
+type WithdrawSignature200JSONResponse Signature
+
+func (response WithdrawSignature200JSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature400ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature401ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature403ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature404ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature409ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature413ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature415ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature422ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature429ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature500ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type WithdrawSignature503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response WithdrawSignature503ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -8090,6 +10034,9 @@ type StrictServerInterface interface {
 	// GetReadyz Readiness
 	// (GET /readyz)
 	GetReadyz(ctx context.Context, request GetReadyzRequestObject) (GetReadyzResponseObject, error)
+	// SearchAudit Search the audit trail by person and by record
+	// (GET /v1/audit)
+	SearchAudit(ctx context.Context, request SearchAuditRequestObject) (SearchAuditResponseObject, error)
 	// ListCurves Curve history
 	// (GET /v1/curves)
 	ListCurves(ctx context.Context, request ListCurvesRequestObject) (ListCurvesResponseObject, error)
@@ -8111,9 +10058,21 @@ type StrictServerInterface interface {
 	// CreatePredictions Concentrations of unknowns
 	// (POST /v1/curves/{id}/predictions)
 	CreatePredictions(ctx context.Context, request CreatePredictionsRequestObject) (CreatePredictionsResponseObject, error)
+	// RecalculateCurve Recalculate a curve from its stored raw readings
+	// (POST /v1/curves/{id}/recalculation)
+	RecalculateCurve(ctx context.Context, request RecalculateCurveRequestObject) (RecalculateCurveResponseObject, error)
+	// GetCurveRecordPDF The printable calibration record
+	// (GET /v1/curves/{id}/record.pdf)
+	GetCurveRecordPDF(ctx context.Context, request GetCurveRecordPDFRequestObject) (GetCurveRecordPDFResponseObject, error)
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
 	ReviewCurve(ctx context.Context, request ReviewCurveRequestObject) (ReviewCurveResponseObject, error)
+	// ListCurveSignatures Signatures of a curve
+	// (GET /v1/curves/{id}/signatures)
+	ListCurveSignatures(ctx context.Context, request ListCurveSignaturesRequestObject) (ListCurveSignaturesResponseObject, error)
+	// SignCurve Sign a curve
+	// (POST /v1/curves/{id}/signatures)
+	SignCurve(ctx context.Context, request SignCurveRequestObject) (SignCurveResponseObject, error)
 	// ListVerifications Verification standards of a curve
 	// (GET /v1/curves/{id}/verifications)
 	ListVerifications(ctx context.Context, request ListVerificationsRequestObject) (ListVerificationsResponseObject, error)
@@ -8135,6 +10094,18 @@ type StrictServerInterface interface {
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx context.Context, request GetMethodRequestObject) (GetMethodResponseObject, error)
+	// ListPeople List people
+	// (GET /v1/people)
+	ListPeople(ctx context.Context, request ListPeopleRequestObject) (ListPeopleResponseObject, error)
+	// CreatePerson Open an account
+	// (POST /v1/people)
+	CreatePerson(ctx context.Context, request CreatePersonRequestObject) (CreatePersonResponseObject, error)
+	// DisablePerson Disable a person
+	// (POST /v1/people/{login}/disable)
+	DisablePerson(ctx context.Context, request DisablePersonRequestObject) (DisablePersonResponseObject, error)
+	// UnlockPerson Unlock a person
+	// (POST /v1/people/{login}/unlock)
+	UnlockPerson(ctx context.Context, request UnlockPersonRequestObject) (UnlockPersonResponseObject, error)
 	// ListResultEvents Change feed of sample results
 	// (GET /v1/results)
 	ListResultEvents(ctx context.Context, request ListResultEventsRequestObject) (ListResultEventsResponseObject, error)
@@ -8153,6 +10124,9 @@ type StrictServerInterface interface {
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx context.Context, request GetSampleResultsRequestObject) (GetSampleResultsResponseObject, error)
+	// WithdrawSignature Withdraw a signature
+	// (POST /v1/signatures/{id}/withdrawal)
+	WithdrawSignature(ctx context.Context, request WithdrawSignatureRequestObject) (WithdrawSignatureResponseObject, error)
 	// ListStandardMaterials All standard materials
 	// (GET /v1/standard-materials)
 	ListStandardMaterials(ctx context.Context, request ListStandardMaterialsRequestObject) (ListStandardMaterialsResponseObject, error)
@@ -8274,6 +10248,31 @@ func (sh *strictHandler) GetReadyz(ctx echo.Context) error {
 		return err
 	} else if validResponse, ok := response.(GetReadyzResponseObject); ok {
 		return validResponse.VisitGetReadyzResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// SearchAudit operation middleware
+func (sh *strictHandler) SearchAudit(ctx echo.Context, params SearchAuditParams) error {
+	var request SearchAuditRequestObject
+
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.SearchAudit(ctx.Request().Context(), request.(SearchAuditRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "SearchAudit")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(SearchAuditResponseObject); ok {
+		return validResponse.VisitSearchAuditResponse(ctx.Response())
 	} else if response != nil {
 		return fmt.Errorf("unexpected response type: %T", response)
 	}
@@ -8501,6 +10500,56 @@ func (sh *strictHandler) CreatePredictions(ctx echo.Context, id CurveID) error {
 	return nil
 }
 
+// RecalculateCurve operation middleware
+func (sh *strictHandler) RecalculateCurve(ctx echo.Context, id CurveID) error {
+	var request RecalculateCurveRequestObject
+
+	request.ID = id
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.RecalculateCurve(ctx.Request().Context(), request.(RecalculateCurveRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "RecalculateCurve")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(RecalculateCurveResponseObject); ok {
+		return validResponse.VisitRecalculateCurveResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// GetCurveRecordPDF operation middleware
+func (sh *strictHandler) GetCurveRecordPDF(ctx echo.Context, id CurveID) error {
+	var request GetCurveRecordPDFRequestObject
+
+	request.ID = id
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetCurveRecordPDF(ctx.Request().Context(), request.(GetCurveRecordPDFRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetCurveRecordPDF")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetCurveRecordPDFResponseObject); ok {
+		return validResponse.VisitGetCurveRecordPDFResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // ReviewCurve operation middleware
 func (sh *strictHandler) ReviewCurve(ctx echo.Context, id CurveID) error {
 	var request ReviewCurveRequestObject
@@ -8543,6 +10592,79 @@ func (sh *strictHandler) ReviewCurve(ctx echo.Context, id CurveID) error {
 		return err
 	} else if validResponse, ok := response.(ReviewCurveResponseObject); ok {
 		return validResponse.VisitReviewCurveResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// ListCurveSignatures operation middleware
+func (sh *strictHandler) ListCurveSignatures(ctx echo.Context, id CurveID) error {
+	var request ListCurveSignaturesRequestObject
+
+	request.ID = id
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListCurveSignatures(ctx.Request().Context(), request.(ListCurveSignaturesRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListCurveSignatures")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListCurveSignaturesResponseObject); ok {
+		return validResponse.VisitListCurveSignaturesResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// SignCurve operation middleware
+func (sh *strictHandler) SignCurve(ctx echo.Context, id CurveID) error {
+	var request SignCurveRequestObject
+
+	request.ID = id
+
+	var body SignCurveJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.SignCurve(ctx.Request().Context(), request.(SignCurveRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "SignCurve")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(SignCurveResponseObject); ok {
+		return validResponse.VisitSignCurveResponse(ctx.Response())
 	} else if response != nil {
 		return fmt.Errorf("unexpected response type: %T", response)
 	}
@@ -8791,6 +10913,125 @@ func (sh *strictHandler) GetMethod(ctx echo.Context, name Identifier, params Get
 	return nil
 }
 
+// ListPeople operation middleware
+func (sh *strictHandler) ListPeople(ctx echo.Context) error {
+	var request ListPeopleRequestObject
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.ListPeople(ctx.Request().Context(), request.(ListPeopleRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "ListPeople")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(ListPeopleResponseObject); ok {
+		return validResponse.VisitListPeopleResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// CreatePerson operation middleware
+func (sh *strictHandler) CreatePerson(ctx echo.Context) error {
+	var request CreatePersonRequestObject
+
+	var body CreatePersonJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreatePerson(ctx.Request().Context(), request.(CreatePersonRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreatePerson")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreatePersonResponseObject); ok {
+		return validResponse.VisitCreatePersonResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// DisablePerson operation middleware
+func (sh *strictHandler) DisablePerson(ctx echo.Context, login Login) error {
+	var request DisablePersonRequestObject
+
+	request.Login = login
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.DisablePerson(ctx.Request().Context(), request.(DisablePersonRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "DisablePerson")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(DisablePersonResponseObject); ok {
+		return validResponse.VisitDisablePersonResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// UnlockPerson operation middleware
+func (sh *strictHandler) UnlockPerson(ctx echo.Context, login Login) error {
+	var request UnlockPersonRequestObject
+
+	request.Login = login
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.UnlockPerson(ctx.Request().Context(), request.(UnlockPersonRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "UnlockPerson")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(UnlockPersonResponseObject); ok {
+		return validResponse.VisitUnlockPersonResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // ListResultEvents operation middleware
 func (sh *strictHandler) ListResultEvents(ctx echo.Context, params ListResultEventsParams) error {
 	var request ListResultEventsRequestObject
@@ -8986,6 +11227,54 @@ func (sh *strictHandler) GetSampleResults(ctx echo.Context, sampleID Identifier)
 		return err
 	} else if validResponse, ok := response.(GetSampleResultsResponseObject); ok {
 		return validResponse.VisitGetSampleResultsResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
+// WithdrawSignature operation middleware
+func (sh *strictHandler) WithdrawSignature(ctx echo.Context, id UUID) error {
+	var request WithdrawSignatureRequestObject
+
+	request.ID = id
+
+	var body WithdrawSignatureJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.WithdrawSignature(ctx.Request().Context(), request.(WithdrawSignatureRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "WithdrawSignature")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(WithdrawSignatureResponseObject); ok {
+		return validResponse.VisitWithdrawSignatureResponse(ctx.Response())
 	} else if response != nil {
 		return fmt.Errorf("unexpected response type: %T", response)
 	}
@@ -9212,480 +11501,522 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P1bjxtJlieIfxX7R09BZJYHgxEKZaYiUMAoQ1KVunWrCCmzZ4qZdAt3I+ktpxnTzBgRrEz90TsNLHpe",
-	"Zx4GmIfFArOX525gkb3Yt2zs26D6M2x+ksU5x8zc3OlkkKGQMqtXBVQqSNr9cuxcf+e7nUxNZ0oKac3O",
-	"0Xc7E8FzofHPU2H14sHICg2fcmEyXcxsoeTO0c6ZyJTMDbOKXfLCsnMxUlowDVUKOe7tJDtafDsvtMh3",
-	"jqyei2THZBMx5dDUtJDFdD7dOeonO3YxEztHO4W0Yiz0ztu3b5OdGdd8KqwbxslcX4gnD5fH8GoiWAY/",
-	"3jGsyKHLAr6ecTvZSXYkn2LD+dqh/BstRjtHO3+xV63CHv1q9l6/fvJwB8bzJBfTmbJCZou/EovlgTxg",
-	"WVkIaXeziTJCsjdiwTqcQX1WGMbZWKmcZRNVZKLL7IRbNuVvBPwCC1aIfCBhiMJYZvhIHDMjBLMTwdRM",
-	"aA693DEs6rM3kH62tF/VfKOx7sJga+vOr54KObaTnaP9g88T2IfwGVbdWqGhzW/+8GD33/PdP/Z37/eG",
-	"R7tff7ef7B98/vbf7ITtMlYXckyLI43V86mQtn2HivA7K3IhbTEqhE4YN2ymjBU5uyzshBXWMD2XZtUu",
-	"Vp3cdDefhM5x2C/5WJzMtVG6fdipFFd2mGGJlKkRbsdMi4tCzQ2b8bE4ZvzcwLRGSuOvo0Ibiz+FWXw7",
-	"F3pRTYOa29l0yG58MNzTuVx1BfRcvt8L8Bbqm5mSRuCF/ILnp3Ra4VOmpHWbz2ezssjwvO7NtDovxfTX",
-	"f2NgoN9t2ONLqkWd1qf6jJcjpaciZ2YhLb9K2KVWcszgRDKlGWcXvJwLpubWFDldH2r2iE193YH8y7MX",
-	"zxPGGZ1gdjkRWjDO5Hx6LjQ7F6WSY5MwLtlcvpHqUrJRIcocqrgLwpQeSM3lWLCLQpXcCvwVt5oF0kXX",
-	"PFfCMKksg6VZwLV9m+ycKDkqi+yDrh4eFGHUXGdALo3lVsDBPS+AiOOPRH86nGgqg6MuLkXOeKkFzxcJ",
-	"4wNJP8GNVXPLOBsVNmE8VIYfaOH5VLCiIkVIEo0typIVcgDTH09s163HYxxGLuSHXhCr3gjJSp69MUxc",
-	"wPaZTM0EKwskTIVk6dWuvzq7+JtJeztI9OAk8PKR1kp/yGH7jpmAnnsMpnGu8gUzfGGYkuWCDXaKWqHB",
-	"DuMyr20yEIu3yc5zZR+rucw/9LoDZcrDcawuibgqjMWRveSLUvH8lVJPuR6LDz1AXFFxlQnhbocR+kLo",
-	"O4ZlSo6K8VyLnJXFtKDRngl9UWTiteQXvCj5efnBB5xzy8+5ESzjElbyHPaaZxORM6kukzCHIhPAkZjJ",
-	"3Fogf7m6lAkStM4IaeilLizyKIXBl5vLzM3eQIu5O2PnIuNzI/DZDn0XZiCBsHKZny+IRWlyk7uBnWyb",
-	"rCu9FzGeON9XSj3jcuEeHfOzkIk7JtweDbSzMExdCI0r4E7CbU33teRzO1G6+KP4oFfzWWFMIcdJ9Vwm",
-	"4RFUGh4E9Ubk7FxwLTStSmPSX3311e6DuZ0IaWGUYplhSb/A2ik9FVyyFGlUyri1ujifW8E6p49P2Kef",
-	"3et310sRTVaUlm6mVSaMgUv4SNrCLj7kCn4lynLXcSmFnM0tcQHnWvA3yO3PS+F5SXcdj90KmBTJomFw",
-	"bQdSjUZC5nBFkf2oKPi8FO7ZfC3NfDZT2or8mcgL/grX40OzFHgl7hh2Qr3uwijgcgAVUrIhxTCeZWJm",
-	"TQ95WtcHDOEBfg/E5gksG449zwuow8uXGhqwhTA7RyNeGtEcSVWb2YkWZqLK3BzjSuIYSjGywBcyi1IX",
-	"DEnIcSEFSlUjPi8t65gJMXtlSU+/klhwKuxE5XgUZ9E4vts559mbYcbLbFiqy6FVpdAwguGMGDtxlZVz",
-	"U1yIZ17YpfMLp4PbnaOdXM3hoUhAKqMC+/1+0iYbE28KW171OS3kcMaNGY40z2gZvlvb9sYtf5iZTNRU",
-	"mUzk3NgiK+xiyMvZ5NrT+AALvU2Iw4FN37Ie8HpDNRqOim1rTrnMuVW6Rfw/mQjgIC9B+GcjXpRzTf/S",
-	"UbsQOi8ye4wflJ0IbRjXgvH8ojBKL1Bus2JqrhUHoZ/nfCpoPFdPqNJ+tb5caw7i5lwW386F+x12y01A",
-	"lFvP+mqozfs9CnCUS3EhSuN0FFT0XlzvYFlRRBX10Hw755oeync4/2puy0LoYabUGzPM39tkfT/GzlEf",
-	"8Ufx/voCfcqW+30hdDFyL8YyJagf++9/9fB7kLqjKsT8cZ2zzpOTL/dOTr7ssilfMKCtjI95IUH4sGYg",
-	"pZoWIKGgzN5jDx0VPugnjAMnxF6fsUcvH7Czr3Y/P/yUPUMqzD7v9/sPBzLjZXHuXpS4e7piJT9XGq/q",
-	"HePINzPCGuiYqUunPHsPK/42fKPO/0ZkFha0eppeqrLIFlu+bI9QKg2PGrxLI6Uzkfh3y1Qv1tZP1PJU",
-	"3/3B2eZh2aD26mdig8otj8QGtVqfiA3q1R6I7el5jYK3kOuNRlAj1pvUqJHeG1HYTSjpFrUadHGDmnUq",
-	"t0GFbWgc8LhE58pSgTIMpORWimdYJ4+I2GryhazktcN8G0s+f4g3qnE02g7synuz+joma4nFekLQPCf1",
-	"k7h8D2t71r71y8covmBr9/DrNirsj0fTbmOKscSGQHbABe7trH0D+r178RvQ6/f7+y1n7IHk5cKKa6l9",
-	"nV6Txn5zM0ay8+2cS3tdFTeY32PZt8gdXlvnNZRpnkIcn6vfusxxR1uKcJJxqg22DK+/DOwEiL9agLAL",
-	"IjEIwabHvnIqhOXi1ptFBrK6n9CG4dNZKQzLuNYLlhZmGCwbKTsXaDhIq69IcUZK7wKeWmtF7iTDgfTl",
-	"GLIi7MHwau/BsDCB0YG61aQyJTMhLZaVCY6Gu/E40eHJWdRmWQhTs2VcFjJXl6wzg7skrVcjeF5IaXOH",
-	"TQWX7MkZ860cezZhID/t//S3/3n/4B77VcIyNZ0qyZ6cvNx9dsZmeI+BpxhpNWVTMVV60cX5lnw8FrT6",
-	"oK+ZiDInlTPtBdhTyOhSGHb13/9Dn/3zf2F5Uc6RMv7zf2Ej4vFUOZ8K9s8/+OnyqZpLC1/kesE8HQHm",
-	"xoa2CzkeSDhpCdOgo3bD+HbOSzj9bhw1Xo9nmRZ5Yd0KazGel/AbVjx78RLmLQYSzXTHjFdtsZnQRkln",
-	"8vC2AC3MvLTELdbvaS6yYspLs0xRTmGoYBRHBeqUywXzhVGdKngOG1eRHctInWx6MZXZb2c0o5c5F1bg",
-	"qg1R+bhC+lknHfhbM/Q3ZDvKU5ghncjhpBhPVvMcMfd8ncBStQlP0K006fdYX8uN/d6XPBNIzMIxvPEK",
-	"Vy1sTnGTnehsDN3ZWD5nXl66yzqXEyFZ6k9ZCleR7NLd+pGK3639Fr+LNno+zwv76EJsQM3rF6SSEBr6",
-	"UdCGXnLDciVFwkRv3GOpnstepgW3Ik8TliK17RGprT7z2Uyri/gbLWCYIk97y24JCYygzbIP3LannGT9",
-	"QwUth4ba22lsPLdi1xZT0VY2F5YXZTsTOePaFtm85NokrJBZOUflLvdmVo32BW6U7LV6WcTPMLc7foLJ",
-	"TuDBXO9fr9rHp2q85S6KC+8UtJE4E52WJXmmMQPXcttYTzi+HmbF4aEHAggzHnSZO13zkVMtIyPnH+DI",
-	"WBfewUwXVuiC02M3m5+XhQEz2Xhe5FC5RYdQf1cGsv6wOA0DvC+gXmYzLTKRC2yKNpedL1pem4EMPlOl",
-	"4EY4nx6/0kuna1pIr/BblhZRlNxye2EL51bkyyv9GIozJCzIYkDjLFPzMmfOuOjr4mpJloJAIHIkPtgX",
-	"rkxKRzIl2/TlZBEd7XOlSsFl/doszTlQ3uULFelE8CjAiLh27kTHTM7LsjmDCYejItFb5BL/tmEi7Ww/",
-	"tELmXFIOrRf6m8dV2InQkRHBOX0ha0AjAqqdi7qWGDXEl4URbmKxmnh58TYRGWp6BtqpaLWjxsge3zoV",
-	"LYL5iW6drUwnwFbhdWqloAbuDYihK/YRnd58GdiaqeAG7yyylvFWvvOGtcsz1Qj9iQvLlFS3pC6AuqVa",
-	"S3ardW/zGIQf/VMU0a4ZqgmPWFqJ/PDmkcyfJgOZRvI+/NIU9eG7IK0DnSqUhO+CfI6NaAG/XIjA/Q3J",
-	"DpuwNIjrWAtkojkvhyCywxdOLjfYylRJZZUsMvgl18XIpj0Wfcs6Yc2ACLoD02VuEwzJUSRfWQWEBc5N",
-	"ZssFC42QmR0lIKXfoPjH5Vj0fIfoduB3iXHLCjkWxh5hFSkug4uoKdVM1IQzFJdQOHgYrLLouFS5LMKv",
-	"lQx30GdTZSwDEi/tQHquhPowSeUA9ZUwdgyiKLEpJLKyjhFiINPfPnrF9i7296wWMjdpt8ee1K46m8tS",
-	"GBOTjrIwqMFm3AxkWNTE3UWoHIyceFVGwFMAcyPZfp81xjmQ6GmT+H6ogWqrOkjU6Vsv6bEGwQTnrTQI",
-	"18NCDnNuRepJcX0zKkqs59LZudEM4BtgU46vcmmOo1nfMSwVVzO4ruGcmtSR0cIOZH3I1flSOqxlgqNG",
-	"mgtr6JT/cj5doVarK9RaVGmxMsxdr51kJ9Z+rbhbsSYMS0U3q1J44Uj82d9JdvCQE5GqLzXSJnkh9FhI",
-	"pETAeBQGRMKZVqOiFBFRcuQ42bnahbnvXnCNuwCLgGTqGbgCu4WgL/xq4KenPHvzYvS4sP6L3y2vCn7/",
-	"Bc/enNRWBr8+PQurQ5/dEp25WT1yC4Q/PolWyZWmpTqllcLvXlTLReON1gy/eOgWDj/4fswT+ZDWDr8+",
-	"qS0gfvXSr+JLv4jksVnpbtqouTdnNZQ8TqNRERAQBK/RMIJQG/53jYQJnqQF8potj+ul2jUF6E2yUIpU",
-	"nEDr8CRe8NIkrN+7B8S337t///612s/79+/X9J/32kdltSqfwlNqttQDnk3E5YRr5N2hEfKtMqzz5OwF",
-	"++zzz/q7B13PEgQvVPA+KwuJbtdNDqBNMEWVxYbWAlejVJcbVsD9FxsWvuRagoJgiwH5KpuOqMHzuOHV",
-	"22kMpDbrpLZorXwObdXpvGzldKqnEJjHTvgoLONlL2EnZSF77GQipj128Bnr7N//fL/LDu/f7R6xdH/3",
-	"wKQD5NpJ03guFkrm7Md/OIBXu+PG3T2GondNiv4+ocxddvbwmKUH0AizlwoYBWlENgfa44uFZx9bxPN2",
-	"zNLT3UOqw6IqCTQ/kPxcXQj2ayzvHbOQbUf/8Uv209//pwPq+XB336RspOaaLfc8kKHr/bjr/f5VyqyQ",
-	"tSrOHQlLo05YjQIPU3/UYMl2kh1Yjp1k54A+wXR2kh0YD/zWv9rwcYBN3acW4K+7/q+D8N3pof/rcD+U",
-	"g/bhZKwIsHgx49/OBTiFG2EZRUWwDlzjTw/nurraM6Accuw1WT5Y5d7+wUbBK8Pdr3/9b9pkEgwp2tZC",
-	"4dX/pH5iXwWWRnAYpKlLyK4wh0NeAq+cKTEaFVkhpEVGus4cmJRE5kxdcF1wmYkUnYTEdGYXCfHJdKMN",
-	"qaykgNahGywHZC9hqZMikQ1LRyB8J65d9FFCUXwgQRRvUWvzjMjEkNtWGbDi4EB69qXrT8Y6/RivjGJL",
-	"v2WR2metLOvLQR2c03bm9jZTe7wzyxN/ItlU5aLcFd/OyeSrdC70EYMXh2v2h/N+ws73v07cF0Oli3Eh",
-	"2R/wu2/nPNccJFtXLmHnB18fM6nkrmsAWzfAX6fP4E+nL+k4NlmyVCpJZXshvGSIv6bdmvPYZj4CTot0",
-	"r20hVrMTJy1MBByHc5KQ0KzhFQKBudjI1J3sVIe+rV//G8gIurjyHce7ljDz4z92/vr/+T/+9qu/7v70",
-	"P/xfP/6fYDW6xNWLytHO1Zbs1tZu/cKSenv9xXKxNTzYGdFgadVWdywftRilHPvMcjHWAsyKIzbSQuRq",
-	"mjAJrxWbRaqbyMpEXrLDC6FNK+P7KjJAws2g8kSgghRIoXHWq/ux/N5+r9/rt6vunWeWktdd6Eeh4Ntk",
-	"B2yVpk2VmVkwiKD3Lw2EhudUb1J5zdvGbpiPC/u45OM2SjIR/KIQxpJQeV1DKHCdTbhGxVyRbxaOl8TB",
-	"kK1K0+DQ07AZFcYWMrN0f40XTkYkkaw3N5aBl187ISoFtwHl99bh0U9DUI2vPlRUiPlC7fcDuITa0Pfb",
-	"ho7k9bqRI+GF0rLt+rj3vVow1sFDmqMzgPCKkblEvci1ixnI+QbxnxfieSgN2ltVtD5S5CcYtCmOJUn8",
-	"SinN/IATNtZqPoM4joWj5IWkx9wU1fO2uVMyjPElDKvtQtScx5qxEhADKPI6gYZHxAo9LSRRlM6cBGrn",
-	"elV7Yrs3VNqj/vC6eZ1iobeRnsbka0hrWPpcXBQ0dNNZ7F11E8+5/+m/XbLfMMkucd7MZLwUN50AmpWu",
-	"nQGVcuVRMaTwdeBl+WK0c/SHTajN1002+KUWGPSsJOOSBVodrmrNZYaMvVq4Y0g2AvLZG25O7xqccgsY",
-	"gV98KrCCQ0DT79LZftd331hu55vdkjMqGnlg1afx+uT1M5apSrZb4TwUtEhLtNWzSsONiN6XrnQgfu4l",
-	"vLaeKwbKCDzMw4zLvMi5FStJUygBivhMaeF05SmfW5UGDyOUaK6AtmPDaCIvizeCdVAQglNHKmxYooiT",
-	"WFG5uzEZI2p04kfZRsv8XEFnKNsVgb9Tl65zCvHAS547zkfCSSsLI9BByMyn8I/0yBlpRGfa+aIwq83v",
-	"8FehyvJFfuXj4wWbw5hQg66kYA7EgvxKaHvoFmOoF75w8WiGqGkX+a2PyvWdTZQywniUBVMJ3AnjpVGV",
-	"bcExDXQGuESNTABpcAbE6iA6cf1c0HnMG7MK0731eUVD5eYNPWzY+R+FVsMJl3npNnn5cEGROjEwFJrp",
-	"PBbZpdCgV5lZ59+gVT7P4BoVclTIwgp/Po9JteDXRQrGtTLieu8TwpMgAh4YvWW2LqljdnjZ39E+z5bF",
-	"p7p99dtojOf22+5kcxkb4v3ya1ITP+vPPYpTddsOdBAsRpG8HFizoJYITLNnOCr6Gl6NpKZzqcmJkUpk",
-	"SQ5rVcIiSo58rHR2vWarofdZ4WIxVWQCxUOKItTmcug5N0WrD8/C+T94n9oqoqWQYOHNTSvxu5F+yGv5",
-	"rn+Z59Mp1wuSPmeFFma1qF6AAMUviCJlAtjomsXSGUsYIsTUDBVKipULuILni6Q6buwwdnvfnC59Gddq",
-	"J00lRz+MuH3GLZAW/zxxm9ZdMdrMLUvGBtwBfxoS8lyLVrhtWtFerzznTwuzrUvijQ/QFgrGxlFa0g5w",
-	"M5wqfe2R/B03zxQpBSIQoutqPRdXNgIMWtoGs1NvLhrPJkv+PBZat1Cbo9cej/WddPV5npujCC6HtJ2d",
-	"NoVdN3GWElUSCIea20xNBYkaQT04msvMQWX96Z+Qo4SoQ5JBBlIYW0wdVo/MJkqbJNhuguWcOct55cdR",
-	"8zkBzbn3hDr5stKAZm92vTeAyOvPMwiGC7D75kIPZOraJ5di8HBOe+xBhSJlrOYoHcJSGe/wTgpk0xvI",
-	"l1rAA4LPPr7vxBA5lnhuaGgFGLVhJLNQHNW0A9lJiUyl4CIk8yGWhImn3VaDAC3UMiFEzRU4SYIeSY3c",
-	"isaxCKyDv8L0KWbD4T1AOVh4kAiM6B45DQV5afzNPB+TsnO1G+SyahX9OYkeLpWG33i49y16LTUeXq1B",
-	"loMXKtf8EuEAOCvVuLG9/Kow7Z557pBC494y5/01cuIAyhL/CmMceuczU0jwMNXLNroYHG/ojHTfrVmt",
-	"taKrO4wb0zfnERGUPVXjnx6ubL066htK23YiLN+m7HCNstFd3+E2Kp8G8Wyud7Wz8eGrHTU/icYAk3Ch",
-	"/MGr9qBtvVbSYtqB7ejwCymW9IMV9F5e8LFUBsgMRMZUH+ECVK9+YRtgTawjFSn3lQbpSitFlKxGFFEt",
-	"hAXIS6aPRbybFGlt1iFsEGFttUlFVxEmhf0G0uhMtTdTsmVNn5+NDFkYrFgQblJ7pWs79pradh9dopc3",
-	"bDqYJVqNBpqPbzrm4PKGe9keS7vf7//4Q6exqWh9qi11d6/28cYqUhLjbjwfEqg33PcodHUY99yO3VYu",
-	"mK9gCAcNK9xwpiQCr9KvN7XPqJE6Zn26z/6o3YYzNZ2t5r2JljIMNRziaJtWrGF0MJduV7JEIFrPYXSh",
-	"VhLUs6DEbar3MX4D0RJ77EHlToz+FTNCaBqSOj49DtE8FCsqaUv9418vvZPseKdcHDbFMm3qsVmN+SW1",
-	"euobjX56ULUffXsaugqTdxLLtiFeNWeRW/AAqdnIN2tvxItS5MPKEWQ52quyBmAhZ/wtyE9nxo2JfdQj",
-	"v+HudmzorVlvt7Oc3qbp8xqgh+tp5rZGnZvbTZYNHze0XDhF64Za3Q+nCY1Vji1aw/q5X6NFbKN4D12A",
-	"dpuHAP3CRhhdiKC1hcgdIk8QFlknBAX8xpFD8s2Mor+7x2yf3hjSv/duDLmzgRv0o9hjZAue+DpbZq/F",
-	"Rc6Flb5ToOh6K75nzsm3kEbiX2pTo0pbkOvVnJ8WhBEo2iTkFW98VaftgC05AYBcNaToVujkWl1nVbTl",
-	"p5opeyP49ngGcf1IZ+96bIw1irJtv0rh4G0mka3Yks2D7mt7tSzf+ZPjXjzsIGH7u+BYm7e6eRwHrIPl",
-	"ms3ruyrsvj2YfPnYrF3ACFB8iyWsLtJGCozGdtX1I25Oq2Nsm8d4M+X7K3FlW5TuZAgRpFd0GGm6kG8Y",
-	"t+xc2QkTEiAs/SpWRk6AITIUlwYO+fC38+fiWriqgauv3aXbGa93hoLeoo6aSpPGxWrbe+9H1xIyAO+P",
-	"c9rjTZc9E/vssTRHnYJ0LndDekTTIwoZwO8YwoGyqULNLZdswstRBQJgeel9clx4Xt2LL4XYgpG4HIbL",
-	"Z4YjpYfmIIX4hD3zzQEZyNGKTmrOgaSecdgQdkzheGHxcBj1ODeEUAo9pHWX/tZJ7iQ7rcPaUIhwy//Q",
-	"NY0q3a98w+7Hx+LyNDT/WOmzAxQbvIFiZcwzZ2BpwFQIpCcyzMXuw5NIFkD8kRwLeN6uQv2d4KWdbEkT",
-	"KsbSr556QwcxX2y4NNTvi7/a8UM4pcrNU+66ajvcT842C8lvnnxCyIkwkHYjpZ2DBopDWNfC/yzzL1Xx",
-	"IRTeUL2xJkJ/PfjLZqAzS42uRX9ZanNdRLsWGYQPL7ZoblvVT4iZv8ZtYmnmNdVIc2MaQ6/WJFryKErd",
-	"7VAYTuuRrFiJtghGh4yCeFpeXEm8C1riKFXinf+1O6mNyJxPDzcKzPm6mWCmn3x6921rqM4T+TcEdLQZ",
-	"MHTTgFXBsG30+sXs1tctGGVPwOyn2cnJl4ALQq1DygyyXLmg/sje70QozJNEnJarRE5URX5bQ4sIR84Q",
-	"yz+lb1xc0bfZ0H1OKtgx9wbqueyifj6oSe4gUCqeiZ4DZqplgNlsxKehylt4NWiN2s6ee81DygJRGkGW",
-	"1k5ggNCoUHL5xnRrWjVuvEDcai17U1B6C18+ilaIb2KRXcAldP8930lqBbHfSrL3H2kVd5KdsLitQ3BW",
-	"jy1hftfJuzNFPPz1GqB33LXrbkDliYdAhARvEz9PlJuIdAQQdWzDrcFzhQLyhmLzEofp1sDtMV6mVrIX",
-	"qFllPb+ZtBFRk81Ftmucqwj5jxbIu0KxgphJiBK7bEphm2kY6pFcazVsVcm3/kibLUzCfknPsGYTmfwa",
-	"oaqxp5VqzI+jfUMpumxL3qqaaIhPqxzFY4MTRXam54Q6WGEaJSwt1aWjp/AIpyHyssV2SbXbuZLV0d7X",
-	"Klnx8VczIVclW3MzKwxzQ3AxyeeLaPjQAKMo5s6vf/r7/6mL+diCjLnKgQT5g2VXnmASzko4zNAr5UXh",
-	"ZjGdWWUhycXScsbr6NdweamCkmQT5OZVEfFbGrIw6N0FwnuNl9/PtgP5lFtBx/9GPMpGUbceKJSbgI90",
-	"XAlUWmSiuBD5zYjFjehaHmmR19UK2uaNjCRNdVf0em34ZrXp6Cu6UrXYupFVQN52tOXVJNY1eOVtyTWC",
-	"3xhosU3h0CKf3cDpwPgB18cEFt9YnRc91wSp5ArwsvRhYv73myBUN82+NKrWVb4JLshDj3fqneKkDS6j",
-	"DiMkoWjfZqCMwUReM8vSTBe2yHg5RGtFCny7Pw/ddTBjjS3yrWTrQWEAsGR///PDu7sHzNfxKQpHDpzK",
-	"NgFjrobZTd1VapO7yXD8WiRsceNRrILAhNgFOxELik/wi4tCx+VkASveW4Go2US5XT0rxwkzqgTDpPnB",
-	"qt4U369ULQLLk5Pfsd8fsDA4On8Ju9u7++MP//J3e2c37uzblZ21nfiE7fffqUNTjKe8nZEIJ+Nf/g7v",
-	"VVA+4ZWqR9Wk2M4Qnbzhfd8w6j+qtbl0cgaVvsA67Z7s//J3LpxJgrztgoi6zTAgG4GUyXx1WFnnclJk",
-	"E2rR3RGK9zwDHP9lziHfoW1cuo/JKrqxfMjXYgo+C+4BW7EYHl7wWgzXZrqSraF0nfGZdLyxIXWZ7YCU",
-	"CkMjytGwCmhtN9DCHsEZXor1wjYMg0Z2qRGKYwPEnV2xEIZAhwrY2FG3ncV03MEWQLdUoR1KJJa7NvEY",
-	"vB4ZIlpH5P9clS0wIeJWl2zOjSgw6GFcXAi5Apuhgca3cs9Qoki9N02aUN7I5v5NQ0K20KJTosWwp155",
-	"479rVbNAzgm8xEM+FsOJmrc5rj8Pj7y777lyzqwwr5uCwG6HMOAAQZcm4B3EaGQA8zdSddVyTbG9qRPQ",
-	"TRxdolpDNdsobibUfuHKrwBbjdxi4q25LiDQj6IRdBfubhITudVr2X5MGoF3RPBWU98bRB/Rcd+cxFBH",
-	"1+Jo+2ZXj/WGmq4bPBgk+25G12Ns5JkuZFbMuLOWuqTwHFSHyB9OeS6cZyWSwPNF5amToOXcO11ar2kM",
-	"mXhwckes5UXQYjQ3wjAzzyaV3yZabw8PDro9diYsK2ygWlos44ID5Ld7gIByuiQSVgFRAUP87T83NdXa",
-	"Ne4K9adoM+4qVgZ+nazIOdDv3b/Xa3lXrvcq2Oj9qGzIDvAFNaR6LokL4xLCv3bVaBeDuJcAZAeSMi92",
-	"0uDW6dK4xOiwuK3kxYbwt53qpeo2IGIj0Od3f39ADoIM886lLvbH8fOlgDGvCwYdMHH7t+BN9/lnnx9e",
-	"m43xRo/Z5jqdNa/cqnMANh7QqdD6IJXglxyuu7u2QATORQw84jXpdUqwggH8mV5IRzDbn8m21zBQjlZy",
-	"7/etkW+ZNLUpW7DfsPM++zU73//xh6tjltagdNzv7qcQc5gOZL0e/Hvw4w9XP/4jIbJ+fvjpp7sHcGWe",
-	"LwHadUCdJs+FHv/0t//5Gdfg0JrbhJh1jAsUeTeBmDqCfi/kQC4F2B2x9HBW0vBy9mvQ2UDESN7d6+zD",
-	"x6u9rPvNeTepgb0M5B94ws4TliUs//qYpfc2aOKbccKiagkbf30M+cwLU9OOMG4RhSFhDt/awSo0FDkZ",
-	"G8z7/buC9Qm7sZCjkqS8hJ3XfnO45M7lFsycZCh2TxmnwhnLmS7gGiQD6b4TLIdzXRZyfMzQWqkL4fPQ",
-	"nsPApRhTiBUld6cGqOWBzIvRCN16MR1RN2Hj+rhAez8VFsC1x+w3bN+vxOHLpwj+PVOXwh0s/uMPV9+c",
-	"u/WDBRdXs6Hhdk7LEQp19nHpxTedn/7+P53/+MNVF2J7V9QaqtHICEuVF3AEV7Tgt23R/7r1IBI3Q+G8",
-	"/joZRFUEa3i6v7f45iBNgi8XRsrS7AAFfCq4bLhjUfM7yU7tDu0kO+HiANTqDO7vPfwvNkah79EEl75w",
-	"M97QSwlv/FM/lOjTCz8c/O730Zjwi8dqrl8+DZ+KC1F9eukGih8eXc3O4sEuf/nCjfdtshOFny+LhNwQ",
-	"viWFnqcRTj6iMo2K0gptEo/xUnmPRWpZigEvC2NdIg82mmt8IaAgbdB6jNglaOitMGNfYBLztul9NVFM",
-	"c28689bmY3SlCW8fvVvwUiFoDWYuSf9t2vCf2T/4/AYONP8WPWj2Dz5rd6F5V7v3n6cxeZ0JOV6Rytvr",
-	"Zq4AtwNVsg7InSzUdfRV4IU3RVdFpnTzyBwqf6P4HKq6fTAOZXS6yUk5xZptqrgVsUJt0BjDhpUQqzYW",
-	"ojm5hiLCz+AaKI2lgW99E9eZnOrx0CRioORTj+tZyo6EnIYjqiGC2ykevU0IvrlUHgOzBosB0tP0vBjP",
-	"1dwMoX56U2TG2Ki8wclegfmaoscDxfzDu46ODtVHcWU1n6nSJ5yj0qWixDj+07fwk+ef8G+FcwOJpWq5",
-	"Pu2B7DjA+Bifq3XJQMVa4yuPUP06kFHKlW7C0rl0ngdD79oBvMgZogJ7pwB39qrHxWU3lYqkLM/SSGWH",
-	"3o4E25CiwztLidrSgfTi77aRj0vFishLZ6106MtFdSJEh1YzYuXmAtpqdW55IQPMXjoqRFkK3Q6iNxVc",
-	"Drd08fVm8TZ1MpQBK0jwwo+w2DhFLufXY9Q2EsUsu0jOZlpdIX5NpfHAsq0uTD6Hvr9OEQ4VXHEPhXMb",
-	"Ud9F3hLy3Z735gLjuT1yW1jU5p5EVGD5RKynqY5t2I6m/jk5sqx3X3mpxYzTJpxZMbtBBuay+HauQmrh",
-	"GddCWlLAzmeg2OS1jL4JEzybuA9A5qZPK0SRkJSb/fgP4MabWU6gNi1AH67f4fQ2nWR9o1aVruEtG8Cp",
-	"3u6YqMkbjqhxIKJFW5psNPhGp+3nRp2XYtoCf/D4hN0/vPcZm1EJRoZp02vJiNzu90EJX9HwrpUHnHGc",
-	"BYoiJPPNhHKxBMsWxxWYv48VRiTzsshZAZo0dxrVaEQaRgbvgMtdTaknNwU5gqk+hsqtz52swF2W+XQ3",
-	"KzbjdtI6HVfAseMrG4CIsL/edeLa7hPgU6xisMXOBl4lQ+fsXr+/MvPi3LT387tXr14yKoCQw7UAz3u1",
-	"JE+H/VYUc1vYtnw/ZxOlLTOEKREoiTs/0ErrUOmL5ciA16dPvAy98G51cWP+zZ9reYS8zhshZkIfuTJH",
-	"7oSkvZ2mWL1eLMBf/RyjwPs1nhm1g3P03YYX5JVPqllYdq4Ff9MOf4nxlEK3128c+SPG2V+evXjOXlIl",
-	"VkhMSA7RofkiYekeosvtkV5R4j/CfcqAlruv0oGEu3ly9iVy/ymVKNyvR646nwpX3CkZA14WMZLXefHT",
-	"vK5b2Qp3bEuB6aIdi+jkS9b5VbeVeWrDkcLAOlfYLmboOycj3s/HxFp2VQlXumaRwGz69oZy0dVNMn1d",
-	"7SR+/m2rWst3fgN319gSGrKsIy0h4ELEcj12RFmKKj+lrXw+hL4oMghacmaaFj96EuXKDRineWnDnPDl",
-	"8IiPN6hbmCGYEeda3KAyeNduiDjXrNyWhf3Ut7QN6mYsbCbVQXbR444e+AByUpCLHF37EWI6CBkdTlFX",
-	"cfKLCALOCsw/2m2oFLSgtNyyJQT1HYIfbt/Bv+1iUL4PYbaF2ABrQ4syAqjD7qUurEiJjuIXYIBO2eWk",
-	"KIlK5Nzyc25w3Tgt//kCTWI+DpR1sBG4XAaCye/17zoI/VMw0uw+AJGvab2uOnciF3a8hYEBFuMrV99/",
-	"foFNVHAUZhUrw3MvFxvWmSjr52W6rOTjXSciYNxfTuqLsWJWeUduzN3Ob5CTxMWsVxt5LVjlctD4NvHi",
-	"oaP1ceJk1V1x5jAHPGhS284QAHmh9wsv40NDT0vNFn4M5wvaIgWPwnAnizmSQxJgoM6EoVA5FBOikEd7",
-	"riJOjlkKh2wiyjwdSH+/q0fNI5clroWEzeWosOR+rTQz85nQRuTO2ZsP5Ebd9vw0POBGSCJfZJP6EY/W",
-	"Bs+4nzwYz93IN95G7PFlrUH35Wncrvvuq9A87mDjzG1HPAo5nJs1XhB0RfB6wH5KdbkiXoqPh0ZkSuYr",
-	"vE9GXNOBYOdiUgQA5ALYdfTZ9DEj3Fhyxaz7Ts/lG6kuV8AyrhV+KySSZWiRwrKxsKSAxpl25hKjgWHF",
-	"E6AWVRpwVIgSYHCglAklV+DdFUIX7k2LYdIFkQLB2d31NHgXCeVcl+7h3K8JRy7EfVPsG9934re4/fqT",
-	"xvdLH7uxJTNG3vrcSYWwndKaI3b13/9DH1YSVVxwA4vo9rpsxN0YtQv+jjU87J9/cBdyIPlUzaWFb3K9",
-	"YCPNnTcDgRpbympCGm0vmkL7CdOkwE585E65FCY8kFUdKNSIrDBJjVsJvImH735yRgc1QGl7MjWQPkTf",
-	"GzdCN5SPnUBrG+GfS9wtzzIt8sLi7wkMFhRZCJAGueNfvIRgAmCNtAGrbzRH5xJIpNkErCVg+toTcNpV",
-	"QNY3MypSiMNwJWwe7R3iYY2Cm/9mgCDNuJwNagXldguOI3Ret/9tQTxXulSrWfyk//N/2Ul2/vmHVu+9",
-	"1ciC/kpuK345Ry4f/uFsimq2EWRaEKg2t4m2CCLNVsPx32rbdLBUblK4invepLRLGb206lZctW/Hyn26",
-	"6m/Y51V/uJlp+Kq/U5WuzmjzXrXdorBoYd/9uripuakvb0lbOFB0GK4xL8feDMvwcJVvSsB76zjXyeAo",
-	"RoYjEvkypTUNpbtNzvo6Otzu8m9LW3Iam0eaCLyVXc1jTbxTvsKwRNs5l+Ag56V9dCGkvUVnkW1gIzPe",
-	"yiKmei57FMCAeaXJ76XHc7RuEwS6gygOn2MmPEWplL4PnvXt1tMNwpOvD1Td0h1lCcEFZ+pSKFgxzCag",
-	"49icxw+7eBIair5ECezEN4lpDMRFARZ+42WzTWFUIoluRT4w+M3JPk6BgsA9boZpS36da7AxSWIKI918",
-	"fJ5guX0J21pI++lhfNPv9/uf7d+/f3Dv8LPD/v37+9dZtrcEBcazO1zhUmDEt+tZeFRQCUBGKCQsIiZE",
-	"AxUJMV7iogmL8M7T2+wlgYG75EcOq4aucnPLlk5bDEwa9idepgh/eK0nU+3erng55qV9LET+AfIq4UZs",
-	"y9kQ5X0vaZXWe6u2eqVicDFeWVWdu+uT57mZ3zQTU5PH23KrnIIy9jf99Bq7GKZQyU2jWmwSXDFT7MzX",
-	"bp+Ljw3bUth1QR+5y9mUsFmAcc5EUzsFRdtQHDYIanaVIeEUxje3BzFv8X77EW+WuPehL71GdfK8lo+t",
-	"Hrt7DcpyY7vC2CKScw34cWOY0RPtNI0hscHGbzM0+CBUps+nrom31Rc3cWK+jcV/VwTdCM/XKuZWqRHo",
-	"5rHwIMEEaEfT3uq9at2VeSm+LFRZ5QjcgkC4J8SsyYhlwOsCErE5dVLRmlV5k8d+WTrFObSk8C+NCER4",
-	"f/fAsEuuJeY3h6MdfqIGSLXTrh318uY1PuxWqxLWcRt8zyDP4SRCvSRa1PbtkltjxOq5hPfJWEpbezuZ",
-	"ObYCeXBBuiuyUN9IV3U9DgIFgV7WZr6h4LRdHsfTuUS/9rZD6jtc4aRv4R2COrXx+uWSMZjB3xCRzczF",
-	"puRxDtldp9yCc8dOUn0+OfsSyeNNc5Bs7sdY+eVuW2eLrCVqZaDNOzx320ejnM6jMJQWeyF5uPqw4xUk",
-	"cyk82YSDAfuaN3FpyGC+ufN1LY56o2n5XPnXYgtsl9SkloAk7GC4L60IC/Hwq/1JqnSl63nhufQS/IfM",
-	"BLusVsPf2EzoCto0eXdCs+llbtu1zRfQZ0h+3yio7zkv0LYRR+tBApcS7qxYvZtia9zgef6QBDumv+tq",
-	"hYDIdyGuATWkqYtdonSw2BuEIELLrmhoexNqfYKOa47VWU2275jwo0u2P+W5GEg0FGM4zd7F/p4vshvq",
-	"d3vsEXjCBShkHtq+Yyo7JRrBAww3S0NfEHYEJyQ9csosX5tiexrfUdJjEIxnHMGzYXSgCSskI0TEWaEX",
-	"jNuBTKPzmJKNNlRzbhlQw8UCYEWRk5EUx4gRS1UGtbkshTHLEE+FrRCd6gFGWxzmKFlL44CgpuvbuXC/",
-	"O13pGpQRINxCQnB7RLhx9hhfuTEJ989pyzm+t128anhq1zys1YRWkqQQSPmeX8RtQzbjILNW6W8LRfGS",
-	"6OVUoBsGYVac3e3ZcfKVSdX2V3Gsm6TLyFco+iN7WVj9Ddq7nuFrg8qNZrd2Od8xQ8P7xR7O9WLonVZa",
-	"Mt/pBdBqK3Tk2WK9wwgl/871YtclCkLQypumtNsoRoj8b2499IiaDQbwtVcNytwg1u3dc0Ukq4DNJS/D",
-	"63unCk6G5xTdzJ2JOPg5oV4Kfk3DiNK2nFrupUJJmxKgNDoLKqY4ecFNgvqC7Ya8qVpCXvB7sMsbdE/y",
-	"kXaFZGmtKu5h2kVvegJFjuL00ni302NKC6Y0k6KwE1LV3dKxWh7TZufqXWC6l1i8G9gQkJMrfG4Z0+5T",
-	"QCxbyKxCzwu6TmqevREWWKSFh6eqe7Ya1nly8uXeycmXLDhwOwbsfv+nv/3P+/t99qsE/Mz2PGdbhUF0",
-	"j+lsckizgT6yJvE8Ho2GmcIbO9BRM0BkIdtYkNkTfFMrpBVSYx9X2V/wF6kGUs0EaFNrDsHordsheF/Y",
-	"xFJYkXbRW65U2JWSIqn1ZJWCHMkwZBzqQO73XV8UEcJDXSjDteMgAaw3U9OpkmyGtDcjle6jlw/YQb/f",
-	"+3wXFWp0SU2XGF6O0VLZhEXx8kCmHR2AjYIYOr+2aZu7nZ9Xi6JJVWeDXRZomAegP8R0mUuYhsj9KaAV",
-	"wBxzwCl7/4tWBXR14jZmnBoJkGos5sGWmChhxrWRtN2xGrt2syRmbTlhKluHkF5KeT967O1yT6/H1XjQ",
-	"Gk1f94Uf8wuBXvXoikvAChjrfmMwjJskxI6dazZ7eImjbn1zPd5eM0AuQ8wmraa99Zzvq2XokXdKKbwh",
-	"07wCFeQV+rmHfCZYCnmDly/OXqHUjv2ave+K/O1eVdKkScDP8HganWrfMzUvKZn4uXB5FBBhchltA9BB",
-	"JoIJOS6kByDNa0k1j1naADwIYQ+LG+JytJnPHXEscvT3J20DgpKMhPBcUHHLjjKtif/Wkj2XQPH2oERu",
-	"HQvkutRbcfzK+3DYogtzfb04tuD2pMdb9+3aSL3nGb9TkSkyYixjp9wkE0LsSniNEZL2wXnvKcp0RJvs",
-	"g2awlc3Nk55rrnf4+uT1Mwyn9UpJ94DdMQ1yTFEWlKggrf2E7qC15XHZqwKWEHJhhbzecelmfmd17VWs",
-	"UdgM/mUbYJnmjY+hZupOdo2b2bL7GwOCx2zSn6PWbd2lbMXT20rRRr2bm9lJtjUpNLNwvTfwwLNMzUQt",
-	"VHQuzVEVZItLcwQHPJjijhwQerLD82khNzT4Y0enc2l8AC59QR2cUvv4FVrDzKnvA797QB3BeOskc2tv",
-	"E88vzEqOufOI4JEpxDXdErdPuTxvHNKzJuVwnP2yzeG43NxbJzS1Fn+ieWlQan0fM1vxNnoP+OWVWJP5",
-	"+JpV2jYvcttzsJyCM+QjrrW/3eKSimCNo7d7DmtxxK4W/uDE8mPWr3tVLK+CVE0c/mu5aqcr2XJ4rtaW",
-	"w7tuC1fylYGfbI+RDmHRnolE1ujrLTKuLnmn+2Wp9s+vbrguSUUTWqlqldipVWz5l7/zK0sZsTqnB10X",
-	"HsqevnjIflOl30Ie5+mL37PfVAmyANkRgpqGJk8pIcTZw8rRt8Jvccl6EeKbdRBN0YJf5kCiwjT3xlSH",
-	"hdE9xqyawvjU/Ni82fvp7/8rJdfzjbv89wNJpZeRNhI/qBpMNSumLn80pUMWEAs2kFY1s1H54GyqKfIu",
-	"AgHQz9WcowrJQFarUA1TjZCfdCM4dvmzSOD12skjVq1lhAmg5xLjbNNpAfyci9syGF40VVq4qLIqjkuU",
-	"sK5L61cP74f+4ey4DikTelye3lw/0U2f1nDaHlD71RdfQE9nee27p9glpYes/3Lquj6jaKGzSLq9LTjh",
-	"G6SEDFlTP5DpsGL8qedlzn29Rr9uRf8AFsSlRb3GIzgq/P8RE1cSNFQKaM9lYcjqFY7WB0W/vK0D9sx5",
-	"yGzts7WNd7RGRnu1f/T6256v+oHQZLcL1L+JDllczTgiDs9lJrTlhbSLDbsj9yCzVXeeu93Ey8Zv319B",
-	"nbV0rlTtYeKzCiN1G7TxGq5qC1voXaa2mnmoBBzFKgUhhmU3t6J+DOcd1JV39/Cfij+BKsSDioCVEc1/",
-	"0zSdc1TZtxtVAsrrhgfk9mEWXJyZE0CWNFDU7oqVpGMSTbF2guuHZXOVUNtZrQFLjYQWMhPBGxFGYFX2",
-	"ZmhUpfnimNCFcADwlG+I2eXaPPW97CThuzPoJPr8lNptGfNNMtzFrpVbuc75Tq/Pdhe62GTdb+idW9Hm",
-	"zV71+KlbetZP/Tvs3CL9jQcrvP+78tq0zlPSe1veMb34SdiGu1l6K27J3WPV29BiPKyIzx3DfD0W1WOv",
-	"XR6YxnBvAC31s707t3BGcLGq2+7yeyBGcjgZhWGdJYqASey6vei1iyJ0D1oidG/t9YsdEN7XW7j5aY8f",
-	"qGtXoPZgXXdqaxjmPEEAFcFzYPle44v65gZn1T+BG5rnofR7IiwrMsU31oEM8ccVfquD+W32cmtOZWsf",
-	"+Oimtz0CrxxuUCOCVAvBrLiisRPY+LFD/rJalWCy0zyzQgOlomRh/DxhZSGdURw2O+NaF3wsmBZ2rmUj",
-	"c1NwxVmRuumbweCq39+F/34O//kC/nMC/3kEX+4/HgyuPnu8IvfUKxAubhjtdAMJ4CaBhCvUdlGBSEwC",
-	"Fzo1B5ZUhQg4PFagwvK/uJD7zXWzK2HADBhEtmBMoHhbBzim9nkakWlhe+xsoi4lQ2UdCKjHrLAs49L5",
-	"hyAkKvpCbWhxpR4TDybmJlLjRVuvAVS7IQOE2XtRm6ZVuYI8oBWrMBbjf+h5L4sMpjpRRSYQpNIYhCSk",
-	"DQf3OFAvoiNqZS+jexWbyFjHqx0ODw6QPQCSU9hujz0JIKeUpt9Fo1cpg7VgxhZlGTQX54u21L/LISpG",
-	"WMOW0hav8uDb6sQXDjwC0W1hoDh7d9hzRj6MnaoOOy8Qyr3bY4HGY2HXDDJM0QKiwqEgOGbcFXgBohvE",
-	"ChOW47B/13WMKp1opHcMaoZwSIf9w9WlQMerNK19jz0V4PSm5u2Xl3VwQInbtMTnKer23jX85+7BOltu",
-	"eyyQJw63wLFBvj+l2SXmtoDzNjeiIm7HzCANcK5V5PbmtHV8nheWWc2LsvcuhKlaisNtV6IdpdANpJWW",
-	"aCFvU599zo2Ah/XalNHQ7xe+8A1hBepxk0tjIfvRhogQT6lwbDdsSXZiFYMcFLDj04JueE6mPyAFMCfA",
-	"VI8McswvSOJJmqd6nFiv7navYMi/sNECvwylfZaJzY8jNQB1Wh9LPZeZZ1gaZFLPRaWavixkri4Z+pBP",
-	"CQaaS7af9Pt9vyJAlzBlN5RXZS6MdQUwBBPWuJ1aX3gklG1CU2MAlWuDpmrBekH7VG1CWNXo5IeDVxtg",
-	"vGSR9XSdg039jrwD2Ms7AbdMYbFv5ne3wrZtWg7NmQt88PaKXFwUJDF3JOYE3l+VhSDcsBs6YhvhUjev",
-	"TkjnewhXWGB0gzJiA04P1w8nDQsSI8bEfa/c/5fxhXc2WuisVJjDZpVfdziijDu6RDEOJgYp8Y3A3mgQ",
-	"jBrW1mRHDw0k9hZkmd3U/lof+Jnrpf7tk6jP+i+R0XXpp7MwmvoPTxVZaCOi9QHi9rcFuxRA8duJpkeC",
-	"ty5jkDtkoQYB0RXGRyCMAmySx+iPqem0oIAhLGy6q3jdYfxaLxe4GVjDarVDOJN3jFc7rE5VKjE7ussg",
-	"MCpsAlc9HNSbRl1sn7y2/sa0p3fyWdmrsh5GK9qzjfniBkTV+pCfyD235o3rLSMhOUUFe1GdwvoZqM21",
-	"jR7hMY4vx3xe5Dt1RUh/9z7fHT3Yffz1d5+/3Y0/Hm7zcf+gPdn161Zn6gcM3anRtSVTecgbNh3vPQUv",
-	"6bn79w+z2fTrZlLuuwfrFDv/v93//9ff7Sd3V4znS64LLjOBydO3zeKD6V0oLT35B1241thoLrPY3Sw4",
-	"Cpw9PGKgK2MuP38ykKZz1YWwmv6PP0z5VecqYVfDaSG732T7JE/iR2zGTHlZ1vyTKKRlIGv29mPXhct/",
-	"b/KUdRxxAckcNNV7+71+r9+Nu2e/Ztn+jz9ctcbibQrfne1vWHCF12Tjeng8VsD6zvZbD/WXFUVoAC8j",
-	"Pp8L1ZSLCAWDwjAdaXJ+FSvDheL3dsaNQazxYlODnxvdS6roPj3G+jT24IX4Id671eF3N3FjetcIuE1e",
-	"3DXuuHkx8qba1iRyv3qIHob9H3/ojFDtAVyocyDs7rk/bvgMYYPXZfgOmeo2zehd0YkbDmt72O5rHtFw",
-	"Ojdw6QCZqX0n4Jn9/lcPvyclXqX584lOnJ7Po5dt6Pmwzr36egfqa9fy1uKwKojKJY7RJVXCpaviyzFf",
-	"iXEhnBvpoSMuwlHM6/2w/CFe9gav36t4ZyMXcncxIyTNOv+yoTtGfMY+HF6cU3UGcPpWwXEKj4Yr6aPG",
-	"GuFl5wKRwuFVJWeyFrtZJDdfNMj9ppdvadNrDS1P5xq1xNK9Xn46C1nYAgLQACaBAmYzJW0h54Ucp6xz",
-	"At/GZvF4RPGL6Rqik+jqb/50hiafhGZqByZqsjGvG7jI3OQgxdPeXFNT39trJIR6F1ts7a3g362Isgxq",
-	"nksO5Jub+XaIr+sD+p87L/9G1nxKZMv6wbu2CrkEyeGmgD8rMqP01zCtN341P6hX7iZvgHfMi3a97Vx9",
-	"hfEGJ1zmRe7zbGxxpgBaTqwIeMd5CB/JkE2UMqvgOUhjt7YZnwR1bsQKnfOUX7ngBAqiGJoJ1ysUHiXX",
-	"Y2EswyKVK7HlpYvAcKlzwd2HIEbmMkclUGFY5lcrZv8cqIZUNhIvbqKZVVa05+rjVcfYlXlTzGYk59Dj",
-	"jan6jpmYzuwi9h5vuadmPh3yczNsW58//bfvf3X66Hu/KsDn7ma8zCD3msgDhTBLzG/b6G64CiEQ57pL",
-	"8lUo2LwkVRO16a48J+EUJuFYu91YfW9aI9KeCm7sLmlnjTtOpgf6hKtv+r17Kfvpb/83+LT45iB1P9di",
-	"DICJ5gOJagRiQJqR56hbdHqHzoNyKoqcM2EZL3sJ+8veQJ5MtJpyq8a6x75gn312yDoH/f5Blx3s3+v2",
-	"vGrDjw063N8DdcGP/0hezJAudEnjEakzrkCFQcec8UwrY+iuGGYVK9W4g58G8uxhN0DQwNe1aXQTl84D",
-	"5kv17xgGJtyzh8cuVyYfyOpYqZEnJmiTwoNH4ExBa+JuLI/dDADnMw2nYahwn0yvGS3lVt/0fCeOYlH4",
-	"WHS4PbBT0NmY+RTGxs/Rj1gw7/PMhNZKe3DTgVx5kxifKjRVKoOBvoQpIFWNAE2VFhA7xiWb8HLURrR6",
-	"7BEuB4mhFGOIDhbV3TSY29gtx7D6GsBWSqOWAldGxRUGVJgqNg5i+vBwDtVoOBVcpqwDG0BKKTZVORwE",
-	"dJI8Yl9y3VnAsfmXv/vxH3/84fv/+4fvv+kc/Omfugn70z/RsqCtA6ZTSjo3DI6NkqyUULxKQOrZUlhT",
-	"2IWBrPYvYYUVGpcVfmKc+Yg8pgW8GxF0jF+YP/0TAcxM1KUn3yF3OQK/SSVpUmm3xx4rzZan6a7SQPq7",
-	"hDe5Gikc7sLSsfZH/OxhPdROKtTxOvpAf7nPB/jvIny/cJ/pe4P/uki92pZsyIkHKvachhA+P5EXZ99q",
-	"+9eN75Y+H7RU+neN75Y+L1WqfeECA8PnlzCvF6NnOKuY8r6YBeZ8q8B6TxWqE80cTUgcOfHi+qgoyzaE",
-	"LJKbDQQjXus6UoXXvk126jSnzQbbNFHWKyS1rte+S251bgLUt26JwM1pVIgyr/xSKy9Xt27vdcEaHqYC",
-	"o3pDJHHrcyCFyMn1yz98VoEaeMXj0uHS+34R9fO1pLKuJiCcjEUOWnYsTKOox9myNJr1EaO2aa2QrYLC",
-	"SAwIxLrHHrpTd/eIcXgDXUDRpaqahIdNScFyMdYCxgx1hcgBAxs24P499iumEVPKzLg0MAVyhML3CXbr",
-	"s75DtKrJSZF4dNCaWrlx0NA6n811YRdnsHEOfEJwLfSDuZ0s71QKXytd/BHf/iP2BZYl0S9DBy78U6Q9",
-	"hu5W5oillb8d2IhihA8wr6Q1B0YogX5v6TEzQhAdJkj1QgFmRnq162/WLrlduYhnEjBAlsAhVezyxNrZ",
-	"ztu3aJAdqeUpYf/gdCQ0gemZWqrPucSnv0ppXNOrhMc/AUbKDCSv/byU3CAh4wYhelcpnKuryrNMzCyX",
-	"mQDesSyyBaGKGwGr5OWnhNhJbCphs1JZkzg4uBimzeDZcjnHTcJ+/8Cn/4Imuax51A3kQH7yyaMoybJH",
-	"T+OW+LjeJ5+wB2F8DGQol8u1no46U3JUjOda5CyDbdcF9whLXIdAeMNyzS8l3Y/Z/LwszETkbDwvco6+",
-	"v9jWmlTSDjoqziYN3ziWBxJLwz0dyJkWmcgFtun1hVKI3K8FMq5LWacdertTKBKY6UDShjqYd7fKFRev",
-	"xUxw77gKrIdXBqW4un/xF+xEyQsh8buB3GWQi8YRYhdbrAUzkr8Rwwx7fVX4b08fn7C7d+/eZ52UJLEj",
-	"FnQ4KZAwxnh5iRumC2sFpnR8/eqEGClxxTNbLpgprgJEMy9ZXozx1DLWSQ/6B5/u9u/u9g9e9T8/6veP",
-	"+v0eaV3+fdo9Yi+VsWMtzn7/1N+SaZFp5bLlJ8woaIYoNxbIKbtV4TC7YTgjkDSd425uUCYNI+NI5orS",
-	"Ct2DpanULXj/fJMTpKAduJbe4y8hz1HANtWCgQWFEbdkeuxUkbsznPXZTMh8F4UOj7wDLhB0JOCWUYpL",
-	"vDMsZCWkVkmmJdOII6iGpUWe7gFIakqOxFDFZ8GHAc8M5ghg7OCbe3fZLtuHVXJLlJWFkDZhf8kv+BlS",
-	"I1ZIgshI3PLYiZj65cElAdR9OCZIUIpc8CPwiyDkYs7Io7kwLMW3Ig0ouBRQHYGFwpCgXGUD8IWNgtsD",
-	"jEKsOHSNVokOfNPSbTlALvPgqBzoCmYIwM8hMW4CmyxETrW6bIK7Ug2J2xSn+hzXm07+qJAwsyePHj3a",
-	"/ezeISP9g+nR7XHhARnXesGe8+eIKSexzuIYb4Vz6cEtypUg7Y64KgyOmozN+GPNuuxJWwIMBqvrTwjX",
-	"1ruZaqVsF0cPCpHUy8OcGTjBUpQ4I6fuZfT2erdy5ogzEQHDOmkbh3fEkMNL4c1nzGsUQ1OwSA5UlwOz",
-	"V5Z40FCuJMkW1i/jNpug/9KCevOnHJ8WDaPNjT/IhWG5yugJDGtG7+a5OHan1zAzUXNqiEIHirFUWvjJ",
-	"2IlYsFxhXZhl4nCXQW7WzGGXGsbz3NWgrUdCqEbRK2wS/36axNF3k3hdBb6OHicZhGvGiop2HLF9ZhX7",
-	"9JA9ODt58oSVwlqhTeJIH9ZOe8B2DOE/R/Cf3TShKXHMLe5FUaoK5wvrsg4xuyytSBVImK9lgbiD0LKL",
-	"kILWoiAprgOAqX8XwB5iBvIBKwtj3Wnkko21ugwnjYIDOulvH8WAqzBg/4173dIuphXBfUURGLKuwhrC",
-	"DklGqRQWR7DYmk7lkWNzU9aBsswUfxTHxHzhgNCcVpMOHGY6Mp9dvGawkD7na8cFy2M2XuweWLcoa2ta",
-	"C1wirkYbJJZQuptEChrEy8WHwfiwACxMyWRpFnQjCKYHbTxJvbtqs56LK3tCX3Zp0D59bIrvoC/n8t3C",
-	"jv6VEDO/UuE8uLn+ptbL5aQo8QRWjTJ0XJ8LAPfGtaTTJBn6sqfRRnbpCmL1qNUjVNCCtgzX3wGWQxpd",
-	"R0o7aW3vHRuAJ9hdaVSZGFhoxWaqLInngj7wxj3wPxeGqRn/FvwfK//W9CUfC79ix3h67MQdryITLC+Q",
-	"ZhIFN3OB2Of4F8lfFAfjNhAxzw/7fTz3eOjpWAeng0L7ZDkd7mDyUIZrwMjDafb+CU3oeORtK8Y2iRhs",
-	"00XjPTybpUjCzcL7gUP6/Rwe5zB5aKwSP2JKmJVwi6ObTPt62O/DE42A9hSclH4LTR6RhASvtxOQgt6U",
-	"aGagBCBgCWndbIi6oZwzkMSbw26nTKu5FU4m3kIoe+CCizAaU6AYOpAeYYr6OYKBfE8f2Pe4hd+zsebS",
-	"Gvb9QH6/u7sb/g8FY/mOfV8L4Po+itmCiRDhd8Sa2Bz6EV7XhArHexnpVn0+gC5zncZiJPuePX3y7Iw4",
-	"M+2OwffUvucRnZAUCUeJG0l1pGwAeMablcTpkCWsRCZc93WhlX0PopWxfDRq7bZ5JM1xSF8bHIyPmYNI",
-	"i00zjnWrn28aAUnJ7Pt6NCFMGxlM5OKg+7mXiGgUxCpDGwP5qCZcI3UiakEHgZ4haJ7kP9IoiysrJDzc",
-	"A9kiix8txSx+8gkwHEqKTz5xyu4pmgTyKdnX/EzwyYIhiDwERJJ5QNM1sQ793ATmBkp7KbQUVmBerYF8",
-	"MRPywcsnzKs2PJ7TlJh7xt0VqmYOvFul9Thif/ga4MZ9O3d7ffKMMu5S0EKhIAG34wVUOsDVhSpPHoKU",
-	"J0VmndHTANv2wPuMJ2zKS5Dg4Hx57g9PwYWCZA4h7vCwv39MzGuRR+GLam5By+BWigaEpe/2WLo3Eby0",
-	"kz8CU7AH53BBf06F1UVmHH7xnpoJyWdFb8GnZTqQKAxL5eMOU79wuBBdT5geoRnEUyE0iuBGShRN7x/e",
-	"+4zNtDovxRS42Blp+wol99y3v4aUrWlCi8IHMn1J33utfCFpqgXoOhOWYg8mdYIxKYJGI4HxncQvIgfD",
-	"SQw4V7lja+EhgRF9er+/T79hvAIcIY/8B4XJhxkf25Bwzuwd7NUhoFknHewMdugVn7iHA+t3j6n3k7Mv",
-	"WSbKErpN98pCCrPniD3+I9ynDLLJeEIM3EnqEjKDtJiz2WRhioyXFDXfQd0HYxPBc4HLjF/vd73ntevo",
-	"sz3P+qRuONW7DeOhrgvX7fIj5JujN4pYwISlM24nR0VObHBKgzh6kovpTFkhs8XuX4kFMnlkRncS07Qw",
-	"lE6HtK7x0mNDpAEqjDdta+KwjeOn9txRe+avBzMLaflVwi412tUWMxd94Vi0KBqAawFP7zEdHh/WC+ac",
-	"stx1rZ0DC60Ff2MYp1Bmn67QMTIdLr2YEdvO/KM/kHDnEgrUpWtLJYAV0QJ5gKJaI/ZGLFAqPDw4gHf3",
-	"Xr9P+jSgGwM5CJj+dJUGOwFkKnWs5rDI02NnMpsbwcYwEKvCmIUGa2xvIJ8rktkLL+BXkj82FEUx4woH",
-	"HR+JkZ4XSP961wmpu0/AJZ2zePmUFCjQBudQFAGRar/BgBGv4UInt1KNB+j/BTKP885DoW6/t9/rsw5u",
-	"RCHHhCOBTbFczARygko6Cr0QtouXfEnCIU4fZZWIU0XxMqWwtcsgjWCeBiUr9RRUy5GC9lhTmmJcmktU",
-	"7gQOHnnkW2AMUbxAmRhDjxzf18XmaUu8wmxrDR7YDZBecCDkknhwSmYlCymoj6DvOV9Ua0S6Iq9QC5xQ",
-	"jeOIZO7l1J5dr2SJatwhTQ7r+ANIOj86b92o70ql5HQklCLK8Soo3XjcXLrkkbDglWqsg9JpTlZgxoRE",
-	"Ri14MXuNnFsEMAL0yiITQDRhKA9mPJuI3YNePyT00AJ7JaXz0ycnj56fPSIrg6sIVgQKid+pqkPAuC6d",
-	"xcEc7e1dXl72OP7cU3q85+qaPdci1gGjTGFLUTdEUDyRcSkQe/tU0D3bO0c7d3v93l2KDJqgzcY//PD3",
-	"WLSF8LhjfQBRvyCl0gXSKhPG4DteFgBK8BwlCs8M9EI6anDyzHeOdn4r7O9cVw0nuIM+BqG4NO7wZ8wE",
-	"/I1DWybafZ35kLogq01jHjhMWI17/f6qZsK4KKmJ5CUyLzWD187RH75Gl6Ip1wvw9wEltcAwEIsZcP5Q",
-	"zdzsfA1VPRu1cpFfatSfirkhvBxx5U8vI519c32PqYhghSV+UklQN0phL5V+g1vk8wmjFsFYOoZLe/LM",
-	"jezaPYFx7c1KXjR2o+nFvrTwrof3sfTRsk3DPFZuQsy8rtwJ8A70/HtQZEYPJ6i3z+cFCHpotd3g2Lvm",
-	"tjv2fpBbLHQ8dBA9/PAT9u8ePHv6Ptb/VazuXbf0JFFsSGOErJHf8LB6O53j4oCFnGuNE7zXvzuQlctj",
-	"c1dYOlU5Ee0UhoK2nDQiZ6GvAi2x+FihwSZkETxythWu3VHIvbeIR9ShQeJIOumpsHqxiwnM0i6bS1uU",
-	"lX81tGyAhE4V2gmIv404yoGUyhaZMM59SJSjHowcj4dJI4GbNCHuh4QVYLBaJM49irRiJR+vuPuntCvv",
-	"kRyfoueCMKbtvGL3zCpazxufT6h19/paZ7S0ryW/4AV5n6472tXI1xzrwP2tPNmffILeDEeffNJ0YFhS",
-	"BSntNRrIEVNyESbJtwT11gnBThOHUmOC0MLiJFwnDUh2vhhIsDRGP/bYY6cPz9T0vJDOnfHB84fHLAWC",
-	"hnekkM7ZnqR+q1IHww/fJS6rqWywYQy0vcaBGVRalizYrTE5H8gvZLLY8XqhaMFIsIpoSvcIfZtZi1Vg",
-	"IGNdd8q4qawIrSaAY4rUF5UifCDr2nYK3cc515oGNXqvUnaj2RS7QIozkK6DSkO9dNlgyrShMUiJQTwk",
-	"eFB3UI72gGNHdXiTza5aHGXwNmlvtgJKub02Q9qn22syhMZv1mQN52BVm1WU/WaNBqABaLB+px9xXRbC",
-	"WNbI4R+uDQIKtIwBLlhtAJsE1Sz3DxmXlnsXV9f0btUt9P3SG/lW9YKqoFpHARrlXj/yOjuoOZ3ttzmd",
-	"tW9QdXv2KvsSooW9t1cMDxhc4bZXDHwrUJ0QsPHwJTvc5CX7guc+mAur7F9f5bXkzmYjcqq0wdv3WOnz",
-	"Is8FxskcHty/vsYrpZ5xuXCjMz/T2xxe4xMKrC4MiNbRi+xe36/Bu7lhUdhBzO9NkoLVn3LMQ/oe3nOM",
-	"ZSIl26iwAKuIskRwhFMyE5Hx2qUrhVuVk88+fTN04j1lR0WNCFo5tPAtrWD2cAmXX59rrhjWcplq3+/9",
-	"WiXREObhL/xK9Q+vr/Fc2ccYmP1negcf+BzScEQLa8id1HmlopHWg6u979u5hxbRje7o+jvp9dkubwg5",
-	"pJGfdGXA9WKnnsvEg+AhO+6shpF5FtVhlbfgupv4AKfwi7yOOLSnaqWOAZfJfLySv4ArGR09tE9njsj7",
-	"G+gu06obuMWVC46YeNxmyrzTxSNECMM4yLc06oQCtUIEV2RI8/ghIZJO6WKMgeTeD8dO/FNZpTkrC0lm",
-	"cVag7Sn1zQzVCIyeFtM4uYbCO+rxINBcaMHsVkjPeAA2MLXeGEbIUQc1wicQGRGE0rtou3iUjnBkB9sa",
-	"SIzxRCwGJUVQ81jId+6MvBgYj+y+T3aoc6G7jgCF5XFW0XRGwr7DU06PvXM1Oa145Cp0kXIS4UCOhTXM",
-	"+zQHr/zCJsG66GdbuVKhMsxnNWTcDKSZz4Q2AidPSc/d0MA6YZrN1Dx23Bofgf7NITjVfic/UexNOR/R",
-	"ahxOEvLp7e1AksqNo/oA45ekCECL7IXHNHUKREfp6QpNeCHRh/LcjR885Q7795OBRONv6kBZzNDVdubn",
-	"U8Sb6xweHCTkdEB5FwMLVzkmhBcU2jsOYQ0DScOHRIvP9vsQs3tw0E2cziKKZoAIBQclA++Qs3SiZXno",
-	"TlV6RGOgE4c+y/RI47fhiMG5h5VxYcYhIT426M6xGQbn7qEUl+CpY1kpuKEgeVfH+Ua7e8BL+HpB7UDA",
-	"tf9l6C2Q1MxUGcsOIGpJjSr9KNfVPUbDnG8WbkEJF6g+CT+ETM2lNcwFSfmmum4UhcvfYYZgdo6nUYuj",
-	"iQqmtHwU5uB2Ccyoid+iLp7rKo0j9QT6sSFGYQ2FzM1QCpG7pNfpkZsMDLdGBmABoCJzDhwuX6W/fJNi",
-	"PIHPtJ+Sa60u3R2AjmAuWBs6PEY3BmjEefnRWNwIEvQvx9QiDu3GuzddThbkfzsWUmiOzsepq1UZqnGR",
-	"u22sDRH1R/6heEfmBl/YL1S+uDW+JowscCP1cEuHWN7gq/Y/jJgTY2SR3wz2/1RlK7BUXnI7CbTcVU5Y",
-	"2ni3EVOxPsVknU3pXxlP19+ApztRclQ6TNHD/Q3G9JIvSsXzV0o95XosqN69TRYAUuYobUX+TOQFf7Ug",
-	"VPnDg4NNKjuTO7CBj6QFk8WfKdf6qOmu6rw8UJ7knin0ZzriZr/NboOTBcfa3kyON5Ifb6DjwTirUlm0",
-	"SGBn5mKcupm9fP5bVkz5WKyTDV+Wyr58/tv3KR3iGPbcKrQohc8LyUnTtonVGWf5UR782W8WHJxIEEwY",
-	"naL3ro/xp/w9XKmzypE/sIEhHn7K9RsIw/fRzQFsO/GoOaMC43cBfEXmJMvwKh33jEtRsnNRqkuSV/Ba",
-	"BL9GTs446GY1kBSd4dsPYdlRyDe07uxM113vsy8/wPU2F+NfX93IjeTjhf6FXuizLz/Mha6CXTZT99Qu",
-	"dfMOP1nCF4A5kZcpoE9UUZgRsIGbMIp65M7CK+mQggjoNle3nFDoL3jJuGVp9X1aSW8oXXlZr9tjSx7Q",
-	"PfaymjsFyDahCrhc+Hh+9BefuAh0myDkgQs6gQbBJA2L4YjCcQ0KeCBdcCQIbkSaUgAWMSm4e3tPbApB",
-	"LjHkam5NkYsaFpLIB5IkQKWJkDFOivgeixX2FHCMQEgVAITrB73NB/Kwf3+1VBctyi9OrqvGtpVg138v",
-	"A6AuVhmKnXptFoLZEvIxcxHeOhe6t/NRBvsog713g3ocrITxFR7sJXpe4ldgwzdmzZvi3p1bsB48U5hO",
-	"xZE3DElu6ryZVSx1oZLuQfLpWFLy9yern3EuaJnTn5C6ywmk0JJoTSLHHmDTqL7343CZRojUo6sp5Skg",
-	"JRyvVGmdOMWigiAL9qD2oFD2pFLJsdDLM0Mvs/tHzONmwBcjhLwfyFNMkWpi6yUiBkl1SY+naSPxp9jO",
-	"bTgI3D5xp7H9TIR9pcaORiXyj8T6I7H+AGbeZsj3e7X0LkGf37JET04XcS+VB0aLAICuzjZd5VX7ZQNF",
-	"/RfoT7EEX79C6K4t/Efp++e/d1+2I0q0elqs0U1vKIYnm4jZNUTE1feMPYnANKDZOtRJNBkXuHjObTah",
-	"QGHw1I876h4HjIqBhHTKdFvRxhqAvs4XbMIRl6Y+KGca97BkoWOCcCOEy8CrdKaCo2ogDZsEoFhqIPOi",
-	"RDy8rgNHms64piTUDlKnFnt/FKJ2BhLzBGFCFJ8ZCJv41cPrMwiBiyYiqxsUxgcSU9389B//l4bBuEJe",
-	"7MWLPLSqFJq7dCtpQgziQHpVxI//cNBnv/JOCez1GXv08gE7+2r388NP2TNsnX3e7/cfxsCQ9X08XvYN",
-	"oGEhaLIuclyjxLuwDWQNBxG/9r4E3qXtQRXejUvrExlR7IRnU4GzJdybB63OGnU3DZ8OqI6aErw2BpJb",
-	"OLzk/YDxv03vjVrjSjsTUcT/Y+zjJdNzeRxVI/8ExGE0Dl57yVXE5YVnD2QIclEyWJ8ix5UaefaWVxpC",
-	"YamCMANJgdpoJUc8A/KroBlbpchpp9ZYMpBQiOQLrQhj0zsH4OCdVxKqo2BOVnNpyI/C3a9awPh9hyQU",
-	"claScsmDM5DoEOemhIg1/GMolR363wBpyAs3lWMPXPUYmC8sVdVI7BpTNdFQQ7myEIAzKsCHBvAOjhB6",
-	"Pt5sh6YZH6PIEQr6rN053NVhdGEQxYSTj84K3daX9aQ7vyz5py3xywf2W2hL5bQBCxMcZ9XcAoX5KCt9",
-	"lJXeP892SswJb4cDq9DANmTdAht0vf0kwi/b+6768NYLV44kvie3g0h9hDedPF8R1bBuoPRANdzSU+tN",
-	"IwMp1WX3KOSiECFtcXgxLRkZkCBjXepOBz/KgexIZTd5LIiRg8L+tSEjLoW7DqTXg3kVXkLpPLn1uW4i",
-	"KwbO6pLTQwsL5DPyGG/qYUbEfrE0sWEhhwj4geh2ElV9Zp5Nmi+eGUh6jFWZC82UFD32VSNNBrUPjo70",
-	"qvGxGE7UXDvgrIhzKoxrBzN50ALSTiSUW5kAoHFgPXbYP/RY2uiwqgXi5hBSSyHZpdK5WWdrfiIfK8ri",
-	"t92zVskPO9cHk672L9smEnT5NZkqgi/wCNbHqMckwxhigK4KQuR2+1DH9x7g5LdiXZxTtfUfxf+f/SlZ",
-	"3hW4qtwdy1uV/a97Qm7XHv/AsPTli7NXrKn6i7pJExKMYmVctQ4jpSmAovG4pI4opEvPC1xdzMwwkAE5",
-	"a8MXM+064EZcfcDrDMiDaI/J3vjh5abVov9cNcePNpTDgQyRJmSbWS0jVPTwXSzhMVV9T/JC20A/msU/",
-	"Sg8fpYdNSP7v5xx4ksUa2ner9nEHj7eRTNBg+EtCgYhj44hN9diS5wsMPVplOHnmun6PBIC6WGfycPP/",
-	"iJhw+zbDsowSHtTPSuzj4cqsPL/bWCdiFgMVtHD+WOZiPcNJ3e9hThjCKqLYNPgbCzuM+8VAVtnKScNL",
-	"EPb1M++bJsnxKvqlc9Dfh8AvgVgtupo6hmgmkYrV5wSsvEFCI5QUcCCdZzGMrRq6h9W0y3fxjmHu/hAd",
-	"GUg/UOmYE47+JeSrAcrQg34fFcNaGFKbh+xqkFMmsjBQCrEIIaLKLm9iILGgxDcTdYlTKEsMoANFNykA",
-	"qrxBc1kAdD/Mr5DA4JJQC34qa9Smzzzwz/tgY6jxn4lxcTNroVkks2a89MqVxs4fhx1GbA9SliJ1u02F",
-	"7Orx0bVz+6f0u0WV+YckjV6qve/g2PxrCyv7yIr9Aj0U8fIEapRUZr+Y5aG8pds+ZnXuy53pW2DCnJaS",
-	"jHQU9x0DD6SrMViJkrYhw4HVrtJs4T/vR+P2gJmZyEBnHpGziMZtoHeLYvaqEVWQX/uHnx1+fvfTw8+u",
-	"Qf76+meh7RU/+lH59vNf/xfS78bN77eTvba3uLS7rOFz7uhOhZRRMZJkow9QCmS5xxiPBMExCDfHJ9Ki",
-	"xN2o28DMGd+CmqsOL9RE1KREAk1ITbYdouYxab2Atwx4mT5loUcQCX4552JcSInAoV8IZFyxXNIE3yyM",
-	"Sx7FjLCsg8Zfl60BsfEom3uUT8rAUFz63AiE09k6BGZ+gq8c2BAB3ztUCZapqcsBM5CPcXVgaPURGSF8",
-	"OmBsIvDrSmbiyDeLad9Cika3fLQnBJ4beVoY1y8qIznNC/ZUD6TzEgqJIL31KgwUaajuhdw5VKwO2A9d",
-	"R935XG6UHsIeoRsXbgHgkKAXjA+bQnetHnGbYC103/d4Ds4eHr2ffDFI9Rx8NXreTytZbTJ1JeNfU4Cr",
-	"GchW016oEH6KB+HTtlWwNXFqrhSvy5CuUlU4tigqSXlxWpUalAfgEW7u1trZGE7yVoEv9/v91fmWP/QD",
-	"SEv0WLQ7ccRoln8eOF9/jqwtvRRIcdWo4RZX8+mmb26mW9TzjY1FUR62pfBrpZ2CBYhOJ0pbXSFtOXpD",
-	"Nv0RuvxIUaWwBjpBKocGsNedgOAecdD+eawo4RHj7KC/D8Z8Lk2UpaxGYtF1cS5dGI6M0sBSdijI4uM8",
-	"MGlkVf4hp99Rmvwa4f0ShLRDqS/D1jIB2Z4TZpWCpO8DiYVMl4xNgE9FJqfEZ/50vpFxgFA99PKIaX45",
-	"kDm3vMIgsxOtLiX4NCzAkzfKbsU6h1dXXeolaJMi9KlzsVAOMYjuOylxjqJFZ9O58VlsCbXRWFrTap8q",
-	"iLBjrxWCJQkx7x7JrOTnokTEQ64NvqwD2VnCZTJsrCiFVuTXS4fFXrok/canezUTrik1f+zSe+wvSZHX",
-	"VFZRgnSXRugvWJRuaiDPBDAYSxmorGJT0KNpYTHS3/CRgHSdC2odr5h3oBlISm+G77Gh511McfgAJEVJ",
-	"qzyU1MEhQ78PD3+GBOcOKuDkWOiZLujd5+zsdw92D+59ehQnvSKIybD4jBs249r4FDVCZipESbCOUaDw",
-	"s5jrPyMfz6mAY+84GLeiU26t0N1j6mggIe9Y3NG3ywmK6ARpfknZ0c4XVlCK3TM+FZCfKvHI6mFSiUut",
-	"6qYcUuvldPY++cTjvg0kCxfqk08ow5Sda1nN66C/30Bwx1Egq+g1Vy5xORarbe+pmJV8gd3quUgxTRSl",
-	"GscVrazC9el4bbON53SEKbjiglHKiPp0AwEAM1FZjCeW5u26Ru8kGDB5BPtLZaszgimc0D3Ww/drnAk5",
-	"cCvNEKDvsH8fwcho3vUkEwUIHhVOFySyNhMYD7Ts0rWGzuAsO+IEJAU6uAeUJVQHNTQKMm/EIlwtODqd",
-	"FDPBZOYCsgXDs1rL3AlpabSFkj32FY7yhLiWXVBkHbFQuQIhHEiXrc5lfyZ3dC+CLB3PlOgYMLpVx5Bx",
-	"rp4RoeMfTJes16fDSVlHzSgHVvfYIQukTXYqdd7iUbdINs+Fzz7cOQSVvdcD4QEtDHv96vHu55AArSTS",
-	"h1dnl64jgJVAGZ++i/yaDvc/7w9kx00dwivOYc4q4GCmg530mD19DFt0cvr0MSX0EzIH+IKnhcToBGXc",
-	"gRzIkC4a+kr/IvUYBrQ9sBTwhXlTzGYiP2bnJZdvsE0T/9CjedEhp0S82K+T4mjDeuwEcxOaYGwkoEq5",
-	"IArkEsJSAkPMb0o7wr6vpAvwd/8+sEDqcilTbMgW+6aQmLB1ISBXaepbSPED1k99hlPvhOILuy+i9N4r",
-	"vsTq+CBVlfFjvSpJtlS6kfbR1/LBJrWfE/bTf/xfWb/RQsjEGCqjH2A42/4dXfPDQIZFgOR/2H/VS/V4",
-	"Nmbqw2qWKvgf2AjTvCWUEliwPutQEWLF9ruUD3aXvYiQIGdCw04CWqrjBHzm8hnKgAyxC2sUHqEGw7bh",
-	"fXW7EHOcZN7Ci+gppOC23kh9O7peIQu/N3uI1qtDf5so3SR20+ghWrFuj52qS/fSulSG8F4H7gdawl+R",
-	"9KIvGd2DuN/CVJeC9KtygbcAWQQqSLntHT87NwKyzkNPuciKKS8JYjahtIJE15AIS6RS6X7vnti9i0mj",
-	"FeXtV3PDZW48CKSCzCjpc/4cCOoTOQoeq6ws3tTyERKEGSXKDyuiKUEjR70WMDE+MbgoS3pmwpMCRHZB",
-	"eLwGJnnHMLjTgbLiyaLqMk5wm8/dkuZ+CYnUcJ8Zt1pD+j0BNocxnwKf8eh5J8EAeB9Hcp0frqdpzs4A",
-	"xI5gODEIHwsd9u9/SrxQlBfTAb7OXKbYjRO50vFoL592w5nBNSZgdVhj5BJpHTsQiIboOYHNhosXCCuR",
-	"LdDSsOBUBVUgnSj+ZhIWmvASnEfIgoce3zSyRjukVmgK8nZADZRY8CITKCuxSS6/KggsTosknPQYWsRs",
-	"dYTyp+QuURMyFB4H7FO+QE7oXJHDNIpMVV5GlyTrjsFGc5Ep3LegiYUmHPYuKmNdLlV/FvyS93q91O8b",
-	"aeaucBWOBjJN04H8C8fLUMcR1Z1NlFXIFezus457Wpef0O5AwvFOvNREAmX9PfCkPwk0IfEUZiD9Viay",
-	"gPIiebqf9Hv3kn6vv98/SJK1Jfr3P28vcZDs9/pQ4qB/r73E3eSAShzu72MJOj3+9wQr3+snX+32+4cH",
-	"Kwrs371LBe4mB25BV/gRnM63j7qKOP6/EosWdR2cDDxpgQ3EJ8NF3zlJGN2jVqjz3jGt0TajiY5W9UKv",
-	"GtctZIbadGwhyAHVKryKBKk88leNMuLEbyHpUDXEwLnD6BQ8Po0Ql1UD8tz/xov2wld4+96QTeaRY26y",
-	"4wWjegPLC4EvP3x5LnIikTDnaSGfCjm2k1ihHGP8fbhwwdP5dVGCel4FB/ogIx2y43SA33S0WjtpfiCX",
-	"dDgJ2YRcJfc0BER+t2HOUBC5vrTpCpYXOkXlgc9FWRgv97je/NqhJVCyyskMO20oL0CA3sRb5lypUnCJ",
-	"h2EzBx0X8ew8dPRc/qvEfP7onPMLxKVUxjIeLjIEdFeXObZgzNe5RsfBlS3Giy0yca02YHh6482/3CsA",
-	"j3DEnul3GTIa2QdI7RrsM/RdzUqsRSYKjE+sE7RVGVdvwOuczuX7RqiBYa2m1R/dYX4JybecPYAO761e",
-	"sdv2k6Ei9TwzXr9Svz3O+6Hn8vc77UIzJZ5nQ70WywQr23KURpQvz2FR5Omx8+XwNsE40Q+4Q7f5MPhM",
-	"Q9TquAAeBSVKNwjviVjLllNPxRACf0GT7iJ7o2Q5kU9D0K+fxk5DA/lQaKAtTZgcT2l+f5LEloh5WYv/",
-	"NgOZi6wAkpWwRpwbZqNxHkohM8lA7veiXi5rQ1wZyH3EUj8pSKp0EDeRqXmZs5qRtVH8brPHgEtSSOeq",
-	"0qhxGNdwFgxYjClQbqv0whtYOZpdguYJo8gbbd3rxf6N7d4vAeGoFv3uFBXuNBAIUGR7oHHFvSVNSBus",
-	"XuuyE1CQlyFqtCCjjCgJOQn1mqjkWgLC8VzhqpNduCWBctgAVZ4ILeBJXAF449MzNXFvsAVsG/yQaick",
-	"U1qLzKIi0+sYsOu6xHYH7WIs18XIdp1vlTebw076JS9sawoot2jYBq0X+U1B1eOB/DQ+LjWQgCOWwqHA",
-	"ReElHIfP4rIR9gDrBGkEbkpClrYAP0CDhSRMjPlbBRS85joYfAPxarMichYDvCsfEeuoaxoowgs0vZDY",
-	"bAaSLGoPMBzkiMUP/mhS6F9701WFsYS2NNS2Pf7dk1N2egjktSwFuZilX8xlDnYTGMOLcyP0BenNDesQ",
-	"8HRIVfX65PUzlqlckMrIziMvwZqv4xGrloD99D/+J8ImTVi02PD1QM60AMWm5NolrMfTDTUyLkF97Cxg",
-	"hBmEwzlmaS7goUzpBlanCH9BavkYs5iHjez2WH3RagbIxUD6FfLGOFQqug13dkmtLj2HWKm1+UCaGbyC",
-	"ZiKEZZdI6+AzLTds2bzkaL/Q6LeHbf4mYb9O2G7C/m3CLD8fSLTqBTAM7h6pLptpMSqu3BLAYeEzZaxW",
-	"s4lwIF0Bzty9URyeP0ULRXbmWhgRLgntN2V5Il2yf6Rg1hArBKnomkt2tRuftEn52e7Fwa+F/oyW0J+x",
-	"gfzd08/YxUHvXm+fpS9OX39z2t9P2VQYg36shWSPTj9j6MSAj5KSIgr5ZZ1nZ79LBvLFF6f004sv/hp/",
-	"pqke0cQSOohzCVZx+sXhrCdMVQd4IG0BJgIfOwCc0QzdX6ltTykE2TYdzLwRYyjDhKQXD7F9udYFOMSR",
-	"lwL6Ezx7+vQlG2nC2FLATPzu1auXEGcug++MnWhRQbxzyeYyE9ryQtoFO5/nY2HZQjgvgQivqsKwJyAQ",
-	"3BxnV1khUZwGx7EPIFgEOrNOT/XAUxt/4GBRFjPBKtrTqxR/6hzefGR431GbRuuwWpu2pGncWXW0b5Az",
-	"w5Hcj9LSzy8tndWBBslffy5v1bWSRCfHfry7nyW1E7GbgUJ57Tu0D8wIb4B1ei7RVLYccA1BP/PCsG8p",
-	"pL1wLKzMRFNsqmXAdFiE3jeiMgB0KmEO7LIj55YUheUG1q/y7XYGRac2rfJeVrETFbNypxk0Ae/7Cl9Q",
-	"tt4VFFa0zpEXZkmOvOTVch87tx4SqODt8D7qwb3La3oQFhQlK2Gcq8AqaFVn7x7IqFeM2Kj4vaYMDn4F",
-	"/iy4DfeyG7n9F9aIcoQSAUQCo07AzzQS8+byWq9Q9+g5qEhK6C3K3DmLQl+Y2CRAfjpPCnc0joN/Aivy",
-	"mgto7JSJxmFoKwFGC0Qghy3mZZ3ChqiOCTdxo05M8VMjKWAgq9mtNie6BXynB/H27T1uVD8TiGPtfWx9",
-	"v4L4SUel0LU0v85r8iMKy0frwvtXduZ5OI1WRXaGbz08i52I6Tav+Ro1qOto77vggvH2lhWho8oHjchl",
-	"wnimlTEwL7pvHoSCXk1Uk/oE5ZGe9Jhd83iErtxD6uQPVAUVeQXoTOMiECz/ABA8cOWbtkLeICq2UuRY",
-	"JiuA11Wb+tLD5n4Npvt6xHMY0e2EPb9PM0p9bT6KCb/4RLTNW8obp/XWBAbPFO5OuRW64OUtGltc6oxK",
-	"Y+26QKfsTOUrEaB8as1nYUzv8240OluLCuUH9DH28L3gQi0dlW0AoVYc9K3xoTKhnViqhQd68uOBo26s",
-	"yt4wo5wjulOkoZjrqmaobU5RL5i6YAlxNeMyF/kwUre5hF8ppoQAZF5yak+dq28a8jSkrPPjPzCeVJKV",
-	"FpnlcjwvuU4Gcs5+w/jeT3//X+9Cyq7mCJWu6fHI/3amxYxrZ8ODADuKpQgTJRCmwqJFzhcejlCH7aPz",
-	"3Kzdzy7OwFgxA4tLWUCwiPPCAN36BXgZk7p1+jS8sYUeyDBP0z1mkZSfoDoVm/DKY0QcCPr9GXfgzvTz",
-	"b9wX7Mcf2J/+Z+aGsIfdd4N1UouS2+KiSvkxkNGegLB+jh6zVQd3XFAAiqU0DUD73+vAiv/4w5fdgez8",
-	"5clvn4HLMvvxf7/X2+99eswezTUHGrN38uTVgxP2+9cPnkF2th571NsHJ30H7IUmNIrWd9HlR5g7NEdR",
-	"Ez25UXjtHPbvrwG9apKx9wR/1ezmZxIal2a7kqdxj5A/1zfDmwoPV9r+Zu59B/v10b/towT6wbIILD2V",
-	"N0ejWXme35UVbBXTlunU9eBSMJo/AylrQ6JU0aKPktYvAc3pXa7SeukK4/M3tMHEacmNmQvDONNc5sDq",
-	"QDOsE2L59w8+Z+eFNd1KUwGOYJLgASjEfyCNyLSwwVqLlgLvHS7LxXEIWRLa4zbA98gjOQyAgZxwMyEn",
-	"APRNK9XYsMKuZkNewVDfE++Bbf9MDAf2fU30AG5TUhmT3AaA84JEHu6XfuE/PuDvn+Dg3WacDktEaByp",
-	"2PDJptLBDz0XpbBiY/pyKi7UGyfhYEvHLhixCh3t73crMcshGDvQe5eSLoqD9YYyje3m1KbT4raRioc4",
-	"XE8qrn/+30HF+vr1k4etz/7h8mrRsnwEWfxFsLmwFe9+TbSQuXmfia2Mw3pdkcyqDpwYuTujwmIgwb0x",
-	"nP8oJ0lqSjWDcGuMwzznRsQgF5iNFHpx+uCzh9hS5XKd+hpp5StaDRfKXRYyV5dVhwd9wF+Ep1Kr0sd1",
-	"mwJzQP34Dwfs7CHrXHINiIukSfnxH+7il+T90EXziZJglT+biMsJ1xZ8S7VlnSdnL9hnn3/W3z1w0/lK",
-	"GDvGYBZ0AtjfPTBV4wnb370LcAcHuwcmYae7hyZhh7v7ZI7a719BOCi4ZXVRcyJgITn55FcLa+pu8oYc",
-	"IzEsL87sddzINknKmLIIRqCBTEMHR2zES0M5uS4KVZIyzavJTJXOMkJvB0eRC1WicwZ6Lo7EpQ/at5dq",
-	"aXPsRGjnYRA2HaK+aT/QWUTOy9J5ZVKXhakWocceUEA828dY+GpWAwkH+5hB/KDMCPDQY1rK+ESgrysC",
-	"XHYk14j4YP1aoPYPNhGvFXMPehLxhxgWmYlkOf2rupQD+fsThg95PtfCUJxTLfFrwrQAnaZVui0HbLtE",
-	"iaNZ8Y6si1G+HajiD5GArK2PMNuNA4dxnV6Gai3hzI8wXBToR+yiBDZf9J+6WBmTDgfjFsKpn3Lb0ru4",
-	"uqZ3q26h79+pSzblctG8k0nFBqHDdJ2AJoTWZiMivWqU/vd2JM6DGIjzoIbDefCBcTjpPq3yxRG6gEWB",
-	"q+tnlAQcEJlXpPGjjez22aKHEIviOQ4HY+kvNPl7k3c5shmNxxw2p/7yRmwVnfVbShZHXNferFS2Zy7G",
-	"74n9wl5qMSrUb9qIcq+ehYTlml+SY2LF6yCXchTzDg6Zjlxc6CnLhLTIGkj3thFPNJARK0TrHMLrfGvI",
-	"etCtEOgxVApEXPPYiQhVWcLbfdrCjEhladTrHr+XpbJnX/724xv48Q38+AZGb2Ax5WOxZy7Gv76aljcI",
-	"nEDS8PEZu32Y6Zj0UhAE0u6EERW75VcJ+hbZXIPWEKjiueBa6AdzO9k5+sPXb78OHTbvQ5Wykhwi1ajm",
-	"SFE51HcqYdx0e9V5h1otGFCPCdY5bstfNPJvjiKF4RU1UZNuTZYbfSIvhDaCVbn/YLxeS1dD94rbq4q3",
-	"Nfr7Bz5zNYyFz/MCE5sWZa+eW0VctlWuAjzqSOJJcOOOoirCu5lVIOS1Xpzz4lI3X7YGOSRV1EcFHNxM",
-	"ZRxa/zZraZjykWFSLWcGirxWWJX6jM1UWWSFiJfVVWhr9eUT0mrFxemLltJPwa4jTEA1xz+nwuoi89OK",
-	"cmj0mrhStK1fv/1/BwA=",
+	"7P1fbxzHlieKfpW43LOhKu9ksUhRtkViA0NTUlu99c+kZPfMLrsymBnFylZWRDkiimRtSxd9p4GLntee",
+	"hwHm4eICc86Z527gwH1w3tw4b4Puz3D8SQ7WWhGRkVlZxSqKkr1ntIFtsTIz/kesWH9/64etTE2mSgpp",
+	"zdbBD1tjwXOh8c8TYfX8aGSFhl+5MJkuprZQcutg61RkSuaGWcUueWHZmRgpLZiGIoU8720lW1p8Pyu0",
+	"yLcOrJ6JZMtkYzHhUNWkkMVkNtk66Cdbdj4VWwdbhbTiXOitt2/fJltTrvlEWNeN45m+EI8fLPbh5Viw",
+	"DF7eMazIockCHk+5HW8lW5JPsOJ8ZVf+jRajrYOt3+xUs7BDb83Oq1ePH2xBfx7nYjJVVshs/gcxX+zI",
+	"EcvKQki7nY2VEZK9FnPW4QzKs8Iwzs6Vylk2VkUmusyOuWUT/lrAG5iwQuQDCV0UxjLDR+KQGSGYHQum",
+	"pkJzaOWOYVGbvYH0o6X1qsYb9XUbOlubd371RMhzO9462N37PIF1CL9h1q0VGur87o9H2/+eb/+pv32/",
+	"NzzY/vaH3WR37/O3/2YrLJexupDnNDnSWD2bCGnbV6gI71mRC2mLUSF0wrhhU2WsyNllYcessIbpmTTL",
+	"VrFq5Kar+Tg0jt1+wc/F8Uwbpdu7nUpxZYcZfpEyNcLlmGpxUaiZYVN+Lg4ZPzMwrJHS+HZUaGPxVRjF",
+	"9zOh59UwqLqtdbvs+gfdPZnJZUdAz+T7PQBvobyZKmkEHsgveH5CuxV+ZUpat/h8Oi2LDPfrzlSrs1JM",
+	"fvfXBjr6w5otvqBS1Gh9qE95OVJ6InJm5tLyq4RdaiXPGexIpjTj7IKXM8HUzJoip+ND1R6wiS87kH95",
+	"+vxZwjijHcwux0ILxpmcTc6EZmeiVPLcJIxLNpOvpbqUbFSIMoci7oAwpQdSc3ku2EWhSm4FvsWlZoF0",
+	"0THPlTBMKstgauZwbN8mW8dKjsoi+6CzhxtFGDXTGZBLY7kVsHHPCiDi+JLoT4cTTWWw1cWlyBkvteD5",
+	"PGF8IOkVnFg1s4yzUWETxkNheEETzyeCFRUpQpJobFGWrJADGP752HbdfDzCbuRCfugJseq1kKzk2WvD",
+	"xAUsn8nUVLCyQMJUSJZebfujs43vTNrbQqIHO4GXD7VW+kN22zfMBLTcYzCMM5XPmeFzw5Qs52ywVdQ+",
+	"GmwxLvPaIgOxeJtsPVP2kZrJ/EPPO1CmPGzH6pCIq8JY7NkLPi8Vz18q9YTrc/GhO4gzKq4yIdzpMEJf",
+	"CH3HsEzJUXE+0yJnZTEpqLenQl8UmXgl+QUvSn5WfvAO59zyM24Ey7iEmTyDtebZWORMqsskjKHIBHAk",
+	"ZjyzFshfri5lggStM0IaeqkLizxKYfDm5jJzozdQY+722JnI+MwIvLZD24UZSCCsXOZnc2JRmtzkdmAn",
+	"2wbrvt6JGE8c70ulnnI5d5eO+UXIxB0TTo8G2lkYpi6ExhlwO+G2hvtK8pkdK138SXzQo/m0MKaQ50l1",
+	"XSbhElQaLgT1WuTsTHAtNM1KY9DffPPN9tHMjoW00EuxyLCkX2DplK4KLlmKNCpl3FpdnM2sYJ2TR8fs",
+	"08/u9burpYgmK0pTN9UqE8bAIXwobWHnH3IGvxFlue24lEJOZ5a4gDMt+Gvk9mel8LykO46HbgZMimTR",
+	"MDi2A6lGIyFzOKLIflQUfFYKd22+kmY2nSptRf5U5AV/ifPxoVkKPBJ3DDumVrehF3A4gAop2ZBiGM8y",
+	"MbWmhzytawO6cITPgdg8hmnDvud5AWV4+UJDBbYQZutgxEsjmj2pSjM71sKMVZmbQ5xJ7EMpRhb4QmZR",
+	"6oIuCXleSIFS1YjPSss6ZkzMXlnS1a8kfjgRdqxy3IrTqB8/bJ3x7PUw42U2LNXl0KpSaOjBcEqMnbjK",
+	"ypkpLsRTL+zS/oXdwe3WwVauZnBRJCCV0Qe7/X7SJhsTbwpLXrU5KeRwyo0ZjjTPaBp+WFn32jV/mJGM",
+	"1USZTOTc2CIr7HzIy+n42t14hB+9TYjDgUXfsBzwekM1Go6KTUtOuMy5VbpF/D8eC+AgL0H4ZyNelDNN",
+	"/9JWuxA6LzJ7iD+UHQttGNeC8fyiMErPUW6zYmKuFQehnWd8Iqg/V4+p0G41v1xrDuLmTBbfz4R7D6vl",
+	"BiDKjUd9NdTm/W4F2MqluBClcToK+vReXG5vUVFEBfXQfD/jmi7Kd9j/ambLQuhhptRrM8zf22B9O8bO",
+	"UB/xJ/H+2gJ9yobrfSF0MXI3xiIlqG/7N7998Aak7qgIMX9c56zz+PjrnePjr7tswucMaCvj57yQIHxY",
+	"M5BSTQqQUFBm77EHjgrv9RPGgRNir07ZwxdH7PSb7c/3P2VPkQqzz/v9/oOBzHhZnLkbJW6ejljJz5TG",
+	"o3rHOPLNjLAGGmbq0inP3sOMvw1P1Nlfi8zChFZX0wtVFtl8w5vtIUql4VKDe2mkdCYSf2+Z6sba+Ipa",
+	"HOq7XzibXCxrlF5+TaxRuOWSWKNU6xWxRrnaBbE5Pa9R8BZyvVYPasR6nRI10nsjCrsOJd2gVIMurlGy",
+	"TuXWKLAJjQMel+hcWSpQhoGU3ErxDOvkERFbTr6Qlby2m29jyeeP8UI1tkbbhl16bpYfx2QlsVhNCJr7",
+	"pL4TF89hbc3al35xG8UHbOUafttGhf32aNptTHEusSKQHXCCe1sr74B+7158B/T6/f5uyx47krycW3Et",
+	"ta/Ta9LYr2/GSLa+n3FpryviOvMVfvsWucNry7yCb5q7EPvnyrdOc9zQhiKcZJxKgy3D6y8DOwHirxYg",
+	"7IJIDEKw6bFvnAph8XPrzSIDWZ1PqMPwybQUhmVc6zlLCzMMlo2UnQk0HKTVI1KckdK7gKvWWpE7yXAg",
+	"/XcMWRF2NLzaORoWJjA6ULYaVKZkJqTFb2WCveGuP050eHwa1VkWwtRsGZeFzNUl60zhLEnr1QieF1La",
+	"3GETwSV7fMp8LYeeTRjIT/s//81/2t27x36bsExNJkqyx8cvtp+esimeY+ApRlpN2ERMlJ53cbwlPz8X",
+	"NPugrxmLMieVM60F2FPI6FIYdvXf/0Of/fN/ZnlRzpAy/vN/ZiPi8VQ5mwj2zz/64fKJmkkLD3I9Z56O",
+	"AHNjQ92FPB9I2GkJ06Cjdt34fsZL2P2uHzVej2eZFnlh3QxrcT4r4R0WPH3+AsYtBhLNdIeMV3WxqdBG",
+	"SWfy8LYALcystMQt1s9pLrJiwkuzSFFOoKtgFEcF6oTLOfMfozpV8BwWriI7lpE62fRiKrPbzmhGN3Mu",
+	"rMBZG6LycYn0s0o68Kdm6E/IZpSnMEPakcNxcT5eznPE3PN1AktVJ1xBt1KlX2N9LTf2lf/yVCAxC9vw",
+	"xjNc1bA+xU22or0xdHtjcZ95eeku61yOhWSp32UpHEWyS3frWyq+t3Zb/C7a6PksL+zDC7EGNa8fkEpC",
+	"aOhHQRt6yQ3LlRQJE73zHkv1TPYyLbgVeZqwFKltj0ht9ZtPp1pdxE+0gG6KPO0tuiUk0IM2yz5w255y",
+	"kvUPFbQcKmqvp7Hw3IptW0xE27e5sLwo25nIKde2yGYl1yZhhczKGSp3uTezarQvcKNkr9XLIr6Gud3y",
+	"A0y2Ag/mWv922To+UecbrqK48E5Ba4kz0W5ZkGcaI3A1t/X1mOPtYZZsHroggDDjRpe50zUfONUyMnL+",
+	"Ao6MdeEezHRhhS44XXbT2VlZGDCTnc+KHAq36BDq98pA1i8Wp2GA+wXUy2yqRSZygVXR4rKzecttM5DB",
+	"Z6oU3Ajn0+NnemF3TQrpFX6L0iKKkhsuLyzhzIp8caYfwecMCQuyGFA5y9SszJkzLvqyOFuSpSAQiByJ",
+	"D7aFM5PSlkzJNn05nkdb+0ypUnBZPzYLYw6Ud/FARToR3ArQI66dO9Ehk7OybI5gzGGrSPQWucS/bRhI",
+	"O9sPtZA5l5RDq4X+5nYVdix0ZERwTl/IGlCPgGrnoq4lRg3xZWGEG1isJl6cvHVEhpqegVYqmu2oMrLH",
+	"tw5Fi2B+olNnK9MJsFV4nFopqIFzA2LoknVEpzf/DSzNRHCDZxZZy3gp33nB2uWZqod+x4VpSqpTUhdA",
+	"3VStJLvVvLd5DMJLfxVFtGuKasIDllYiP9x5JPOnyUCmkbwPb5qiPjwL0jrQqUJJeBbkc6xEC3hzIQL3",
+	"NyQ7bMLSIK5jKZCJZrwcgsgOD5xcbrCWiZLKKllk8CbXxcimPRY9ZZ0wZ0AE3YbpMrcIhuQokq+sAsIC",
+	"+yaz5ZyFSsjMjhKQ0q9R/OPyXPR8g+h24FeJccsKeS6MPcAiUlwGF1FTqqmoCWcoLqFw8CBYZdFxqXJZ",
+	"hLeVDLfXZxNlLAMSL+1Aeq6E2jBJ5QD1jTD2HERRYlNIZGUdI8RApn/x8CXbudjdsVrI3KTdHntcO+ps",
+	"JkthTEw6ysKgBptxM5BhUhN3FqFwMHLiURkBTwHMjWS7fdbo50Cip03i26EKqqXqIFGnp17SYw2CCc5b",
+	"aRCuh4Uc5tyK1JPi+mJUlFjPpLNzoxnAV8AmHG/l0hxGo75jWCqupnBcwz41qSOjhR3Ieper/aV0mMsE",
+	"e400F+bQKf/lbLJErVZXqLWo0mJlmDteW8lWrP1acrZiTRh+FZ2sSuGFPfF7fyvZwk1ORKo+1Uib5IXQ",
+	"50IiJQLGozAgEk61GhWliIiSI8fJ1tU2jH37gmtcBZgEJFNPwRXYTQQ98LOBv57w7PXz0aPC+gdfLs4K",
+	"Pv+CZ6+PazODj09Ow+zQbzdFp25UD90E4cvH0Sy5r2mqTmim8Nnzarqov9Gc4YMHbuLwh2/HPJYPaO7w",
+	"8XFtAvHRCz+LL/wkksdmpbtpo+benNVQ8jiNRkVAQBC8RsMIQm343zUSJniSFshrtlyul2rbFKA3ycJX",
+	"pOIEWoc78YKXJmH93j0gvv3e/fv3r9V+3r9/v6b/vNfeK6tV+QSuUrOhHvB0LC7HXCPvDpWQb5Vhncen",
+	"z9lnn3/W397repYgeKGC91lZSHS7bnIAbYIpqizWtBa4EqW6XLMArr9Y8+NLriUoCDbokC+ybo8aPI/r",
+	"Xr2eRkdqo05qk9bK59BSnczKVk6nugqBeeyEn8IyXvYSdlwWsseOx2LSY3ufsc7u/c93u2z//t3uAUt3",
+	"t/dMOkCunTSNZ2KuZM5++oc9uLU7rt/dQ/j0rknR3yd8c5edPjhk6R5UwuylAkZBGpHNgPb4z8K1jzXi",
+	"fjtk6cn2PpVhUZEEqh9IfqYuBPsdfu8ds5BtR//xS/bz3/39HrW8v71rUjZSM80WWx7I0PRu3PRu/ypl",
+	"VshaEeeOhF+jTliNAg9Tv9RgyraSLZiOrWRrj37BcLaSLegPvOtfrXk5wKLuUg3w113/1154drLv/9rf",
+	"Dd9B/bAzlgRYPJ/y72cCnMKNsIyiIlgHjvGn+zNdHe0pUA557jVZPljl3u7eWsErw+1vf/dv2mQSDCna",
+	"1ELh1f+kfmLfBJZGcOikqUvI7mMOm7wEXjlTYjQqskJIi4x0nTkwKYnMmbrguuAyEyk6CYnJ1M4T4pPp",
+	"RBtSWUkBtUMz+B2QvYSlTopENiwdgfCduHrRRwlF8YEEUbxFrc0zIhNDbltlwIqDA+nZf12/Mlbpx3hl",
+	"FFt4l0Vqn5WyrP8OyuCYNjO3t5na45VZHPhjySYqF+W2+H5GJl+lc6EPGNw4XLM/nvUTdrb7beIeDJUu",
+	"zgvJ/ojPvp/xXHOQbN13CTvb+/aQSSW3XQVYuwH+On0Kfzp9ScexyZKlUkn6thfCS4b4Nu3WnMfW8xFw",
+	"WqR7bROxnJ04bmEiYDuckYSEZg2vEAjMxVqm7mSr2vRt7fp3ICPo4so3HK9awsxP/9j5q//7f/+bb/6q",
+	"+/P/5//86f8Aq9Elzl70Ha1cbcpube5WTyypt1cfLBdbw4OdEQ2WVm10xvJRi1HKsc8sF+dagFlxxEZa",
+	"iFxNEibhtmLTSHUTWZnIS3Z4IbRpZXxfRgZIOBn0PRGoIAVSaJz16n78fme31+/121X3zjNLyesO9MPw",
+	"4dtkC2yVpk2VmVkwiKD3L3WEuudUb1J5zdvabpiPCvuo5OdtlGQs+EUhjCWh8rqKUOA6HXONirkiXy8c",
+	"L4mDIVuVpsGhp2EzKowtZGbp/BovnIxIIlltbiwDL79yQPQVnAaU31u7R6+GoBpfvqnoI+Y/aj8fwCXU",
+	"ur7b1nUkr9f1HAkvfC3bjo+736sJYx3cpDk6AwivGJlJ1ItcO5mBnK8R/3khnoWvQXuritZLivwEgzbF",
+	"sSSJnymlme9wws61mk0hjmPuKHkh6TI3RXW9re+UDH18Ad1qOxA157FmrATEAIq8TqDhErFCTwpJFKUz",
+	"I4HauV7VrtjuDZX2qD+8blwn+NHbSE9j8hWkNUx9Li4K6rrpzHeuuonn3P/lv16y3zPJLnHczGS8FDcd",
+	"AJqVrh0BfeW+R8WQwtuBl+Xz0dbBH9ehNt822eAXWmDQs5KMSxZodTiqNZcZMvZq4bYh2QjIZ2+4Pr1r",
+	"cMotYAR+8umDJRwCmn4X9va73vvGcjtb75Sc0qeRB1Z9GK+OXz1lmapkuyXOQ0GLtEBbPas0XIvofe2+",
+	"DsTP3YTXlnOfgTICN/Mw4zIvcm7FUtIUvgBFfKa0cLrylM+sSoOHEUo0V0DbsWI0kZfFa8E6KAjBriMV",
+	"NkxRxEksKdxdm4wRNTr2vWyjZX6soDOU7YrAL9Wla5xCPPCQ547zkbDTysIIdBAyswn8Iz1yRhrRmXa+",
+	"KIxq/TP8TSiyeJBf+vh4wWbQJ9SgKymYA7EgvxJaHjrFGOqFN1zcmyFq2kV+671ybWdjpYwwHmXBVAJ3",
+	"wnhpVGVbcEwD7QEuUSMTQBqcAbHaiE5cPxO0H/PGqMJwb31cUVe5eU0XGzb+J6HVcMxlXrpFXtxc8Emd",
+	"GBgKzXQei+xSaNCrTK3zb9Aqn2VwjAo5KmRhhd+fh6Ra8PMiBeNaGXG99wnhSRABD4zeIluX1DE7vOzv",
+	"aJ9ny+Jd3T77bTTGc/ttZ7I5jQ3xfvE2qYmf9esexam6bQcaCBajSF4OrFlQSwSm2TMcFX0Nt0ZS07nU",
+	"5MRIJbIgh7UqYRElRz5SOrtes9XQ+yxxsZgoMoHiJkURan059IybotWHZ+78H7xPbRXRUkiw8Oamlfjd",
+	"SD/ktXzX38yzyYTrOUmf00ILs1xUL0CA4hdEkTIBbHTNYumMJQwRYmqGCiXF0glcwvNFUh03dhi7va9P",
+	"l76OS7WTppKjH0ZcP+MWSIu/nrhN664YbeaWBWMDroDfDQl5rkUz3DasaK2X7vMnhdnUJfHGG2gDBWNj",
+	"Ky1oB7gZTpS+dkt+yc1TRUqBCIToulLPxJWNAIMWlsFs1auL+rPOlD+LhdYN1ObotcdjfScdfZ7n5iCC",
+	"yyFtZ6dNYddNnKVElQTCoWY2UxNBokZQD45mMnNQWf/yT8hRQtQhySADKYwtJg6rR2ZjpU0SbDfBcs6c",
+	"5bzy46j5nIDm3HtCHX9daUCz19veG0Dk9esZBMM52H1zoQcydfWTSzF4OKc9dlShSBmrOUqHMFXGO7yT",
+	"Atn0BvKFFnCB4LWP9zsxRI4lnhnqWgFGbejJNHyOatqB7KREplJwEZL5EL+EgafdVoMATdQiIUTNFThJ",
+	"gh5JjdyMxrEIrINvYfgUs+HwHuA7mHiQCIzoHjgNBXlp/PUsPydl53I3yEXVKvpzEj1c+Bre8XDuW/Ra",
+	"6nx4tQJZDm6oXPNLhAPgrFTnjeXlV4Vp98xzmxQq95Y576+REwdQlvhX6OPQO5+ZQoKHqV600cXgeENn",
+	"pPthxWytFF3dZlybvjmPiKDsqSr/dH9p7dVWX1PatmNh+SbfDlcoG93xHW6i8mkQz+Z8Vysbb77aVvOD",
+	"aHQwCQfKb7xqDdrmayktphXYjA4/l2JBP1hB7+UFP5fKAJmByJjqJxyA6tYvbAOsiXWkIuW+0iBdaaWI",
+	"ktWIIqqF8APykunjJ95NirQ2qxA2iLC22qSiowiDwnYDaXSm2psp2bKmz89ahiwMViwIN6m90LUNe01t",
+	"u48u0csbVh3MEq1GA83Pb9rn4PKGa9keS7vb7//0Y6exqGh9qk11d6f288YqUhLjbjweEqjXXPcodHUY",
+	"t9yO3VbOmS9gCAcNC9xwpCQCL9OvN7XPqJE6ZH06z36r3YYzNe2t5rmJpjJ0NWziaJmWzGG0MRdOV7JA",
+	"IFr3YXSglhLU06DEbar3MX4D0RJ77KhyJ0b/iikhNA1JHZ8ehmgeihWVtKT+8q9/vZVseadc7DbFMq3r",
+	"sVn1+QXVeuIrjV4dVfVHT09CU2HwTmLZNMSr5ixyCx4gNRv5evWNeFGKfFg5gixGe1XWAPzIGX8L8tOZ",
+	"cmNiH/XIb7i7GRt6a9bbzSynt2n6vAbo4XqaualR5+Z2k0XDxw0tF07RuqZW98NpQmOVY4vWsL7vV2gR",
+	"2yjeAxeg3eYhQG/YCKMLEbS2ELlD5AnCIuuEoIDfO3JIvplR9Hf3kO3SHUP6996NIXfWcIN+GHuMbMAT",
+	"X2fL7LW4yLmw0ncKFF1txffMOfkWUk/8TW1qVGkDcr2c89OCMAJFm4S85I6vyrRtsAUnAJCrhhTdCo1c",
+	"q+usPm15VTNlrwXfHo8gLh/p7F2Ljb5GUbbtRylsvPUksiVLsn7QfW2tFuU7v3PcjYcNJGx3Gxxr81Y3",
+	"j8OAdbBYsnl8l4XdtweTL26blRMYAYpvMIXVQVpLgdFYrrp+xI1peYxtcxuvp3x/Ka5si9KdDCGC9IoO",
+	"I00X8jXjlp0pO2ZCAoSln8XKyAkwRIbi0sAhH/52/lxcC1c0cPW1s3Q7/fXOUNBa1FBTadI4WG1r7/3o",
+	"WkIG4P5xTnu86bJnYp89luaoU5DO5W5Il2h6QCED+IwhHCibKNTccsnGvBxVIACWl94nx4Xn1b34Uogt",
+	"GInLYTh8ZjhSemj2UohP2DHf7ZGBHK3opOYcSGoZuw1hxxSOFyYPu1GPc0MIpdBCWnfpbx3kVrLV2q01",
+	"hQg3/Q9c1ajS/cZX7F4+EpcnofpHSp/uodjgDRRLY545A0sDpkIgPZFhLnYfrkSyAOJLcizgebsK9UvB",
+	"SzvekCZUjKWfPfWaNmI+X3NqqN3nf9jyXTihws1d7ppq29yPT9cLyW/ufELIiTCQtiOlnYMGikNYV8L/",
+	"LPIv1edD+HhN9caKCP3V4C/rgc4sVLoS/WWhzlUR7VpkED4836C6TVU/IWb+GreJhZHXVCPNhWl0vZqT",
+	"aMqjKHW3QqE7rVuyYiXaIhgdMgriaXlxJfEuaImjVIl3/tdupzYicz7dXysw59tmgpl+8undt62hOo/l",
+	"XxPQ0XrA0E0DVgXDttbtF7Nb37ZglD0Gs59mx8dfAy4I1Q4pM8hy5YL6I3u/E6EwTxJxWq4QOVEV+W11",
+	"LSIcOUMs/5SeuLii77Oh+51UsGPuDtQz2UX9fFCT3EGgVNwTPQfMVMsAs16PT0KRt3Br0By17T13m4eU",
+	"BaI0giytncAAoVGh5PK16da0atx4gbjVWva6oPQW/vsoWiE+iUV2AYfQ/fdsK6l9iO1Wkr3/SbO4lWyF",
+	"yW3tgrN6bAjzu0renSri4a/XAL3jql13AipPPAQiJHib+Hqi3ESkI4CoYxtODe4rFJDXFJsXOEw3B26N",
+	"8TC1kr1AzSrr+c2kjYiarC+yXeNcRch/NEHeFYoVxExClNhlUwpbT8NQj+RaqWGrvnzrt7TZwCTsp/QU",
+	"SzaRya8RqhprWqnGfD/aF5SiyzbkraqBhvi0ylE8NjhRZGd6RqiDFaZRwtJSXTp6CpdwGiIvW2yXVLqd",
+	"K1ke7X2tkhUvfzUVclmyNTeywjDXBReTfDaPug8VMIpi7vzu57/7/3UxH1uQMZc5kCB/sOjKE0zCWQmb",
+	"GVqlvCjczCdTqywkuViYznge/RwuTlVQkqyD3LwsIn5DQxYGvbtAeK/x8uvZtiGfcCto+9+IR1kr6tYD",
+	"hXIT8JEOK4FKi0wUFyK/GbG4EV3LIy3yqlJB27yWkaSp7opurzXvrDYdfUVXqhpbF7IKyNuMtrwcx7oG",
+	"r7wtuUbwGwM1tikcWuSzGzgdGN/hep/A4hur86LrmiCV3Ae8LH2YmH9/E4TqptmXetU6yzfBBXng8U69",
+	"U5y0wWXUYYQkFO3bDJQxmMhralma6cIWGS+HaK1IgW/3+6G7CmassUS+lmw1KAwAluzufr5/d3uP+TI+",
+	"ReHIgVPZJmDM1TC7qbtKbXA36Y6fi4TNb9yLZRCYELtgx2JO8Ql+clHouBzPYcZ7SxA1myi3y0flOGFG",
+	"haCbND6Y1Zvi+5WqRWB5fPwl+2qPhc7R/kvY3d7dn37817/dOb1xY98vbaxtxydst/9ODZrifMLbGYmw",
+	"M/71b/FcBeUTHql6VE2K9QzRyRvu9zWj/qNS60snp1DoCyzT7sn+r3/rwpkkyNsuiKjbDAOyEUiZzJeH",
+	"lXUux0U2phrdGaF4z1PA8V/kHPItWsaF85gsoxuLm3wlpuATdV60IlARqOgdAz6qLhdIpHnxahevc1mp",
+	"cnkaXBA2YmM8hOG1OLHNlCgbw/U6AzfpkWNj7cJQMG3D0IhyNKyCZtuNwLAP4JwsxJNhHYZBJdtUCcXK",
+	"AarPtpgLQ8BGBWyeUbedjXUcyAZgulSgHa4klu3W8Uq8Hn0imkfkMV2RDXAn4loX7NqNSDNo4by4EHIJ",
+	"/kMD8W/pmqHUknqPnTSh3JTN9ZuEpG+hRqeoi6FVvYLIP2tV5UBeCyQUQ34uhmM1a3OOfxYYCUdTcuUc",
+	"ZmFcNwWa3QzFwIGOLgzAO6FRzwBKcKTq6uua8nxdR6ObONNEpYZqulZsTij93H2/BNA1cr2Jl+a6oEPf",
+	"i0ZgXzi7SUzkls9l+zZpBPcRwWuj8ER9bxDhRNt9fRJDDV2L1e2rXd7XG2rTbnBhkHy9Hl2P8ZenupBZ",
+	"MeXOIusSz3NQTyIPOuG5cN6bSALP5pU3UILWee/Yab02M2T7wcEdsJYbQYvRzAjDzCwbV76haCHe39vr",
+	"9tipsKywgWppsYg9DrDi7gICyukSVVgFRAWM/bd/3dTUd9e4RNSvovU4uFjh+G2yJK9Bv3f/Xq/lXrne",
+	"c2Gt+6OyUztQGdTC6pkkTo9LCDHbVqNtDBRfAKkdSMru2EmD66hLFRMj0OKykqccQux2qpuq24ChjYCl",
+	"3/3+AVkLstg7t73Y58ePl4LSvL4Z9MwkUdyCx97nn32+f23GxxtdZuvrjVbccsv2AdiRQG9D84NUgl9y",
+	"OO7u2AIROBMxuInX1tcpwRIG8Be6IR3BbL8m227DQDlayb1ft0ZOZ9IGp2zOfs/O+ux37Gz3px+vDlla",
+	"g+tx792rENeYDmS9HPy799OPVz/9I6G+fr7/6afbe3Bkni2A5nVAZSfPhD7/+W/+01OuwWk2twkx6xh7",
+	"KPJugjIRRTPJgVwI4jtg6f60pO7l7HegF4KolLy709mFn1c7Wfe7s25SA5QZyD/yhJ0lLEtY/u0hS++t",
+	"UcV35wmLiiXs/NtDyJlemJoGhnGLSA8JcxjaDrqhoSzK2GDW798VrE/4kIUclSRJJuys9s5hnzu3XjCl",
+	"kjHaXWWcPs5YznQBxyAZSPdMsBz2dVnI80OGFlFdCJ/r9gw6LsU5hXFRAnmqgGoeyLwYjdB1GFMedRN2",
+	"Xu8XWAgmwgKA9zn7Pdv1M7H/4gkCjE/VpXAbi//049V3Z27+YMLF1XRouJ3RdISPOrs49eK7zs9/9/dn",
+	"P/141YX44SWlhmo0MsJS4TlswSU1+GWb979t3YjEzVDIsD9OBpEbweKe7u7Mv9tLk+AvhtG4NDpAGp8I",
+	"LhsuX1T9VrJVO0NbyVY4OADnOoXzew//i5VReH00wIUHbsRrekLhiX/iuxL9eu67g8++ivqEDx6pmX7x",
+	"JPwqLkT164XrKP54eDU9jTu7+PC56+/bZCsKcV8UCbkhDE0Kb08jLH5EfhoVpRXaJB5HpvJQi1S/FGde",
+	"Fsa6ZCFsNNN4Q8CHtECrcWgX4Kc3wqV9jonS24b3zVgxzb15zlu0D9FdJ9x9dG/BTYXAOJgdJf23acNH",
+	"Z3fv8xs46fxbVBnt7n3WrjN6gYzpppgMNwj5yQvM7b/Esurf3iSKCOZgMrVLIsVHs7IcLpWrS5W9Xtan",
+	"0qvsFkppVV4XwL1SNKOa4775OhcHFfoYTeG1oSK0qjeQRadCTTeJLMd2rh2vq3V5T28midaWNjooe07+",
+	"iQ5Ky8K7xV2Ji4kfOVdFwLhpNnTv03pD/WSdzRJUVsCzGbvlgQGRun7Pt12AoUapYlLIwliiLktECyfn",
+	"7a8S+tpyy2+wK8MEtK7hO/rn/Hk6vaxydYlnpPJKvZnL0u1AKq1KOEGeNHWUaJCn10WBRsF2/QhC+v5G",
+	"cYRUdPOgQco8d5OdcoIl29T5S2Ia2yB8hg1vBizamIjm4BrKTD+CayB/Fjq+8UlcZRqv4zaQmgK1J/X4",
+	"w4UsbiitOMYsIE0444W3XcOTS+WxemvwPaCBmZwV5zM1M0Mon94UQTZ2flljZy/Bpk7RM4uwSUA2QIes",
+	"6qe4sppPVekTY9LXpaIEXv7X9/DKy2D4t8Kxgdajqrk+7IHsuMQWMY5g65SBmaYmmx6gCWcgo9RQ3YSl",
+	"M+k8pIbeBQ3kmVNEL/fOS27vVQyqy8IsFWlqvFgklR16ezcsQ4qBOSwlaksb0qvQNo3QXvisiLwJV2qY",
+	"/HdRmQh5ptXdoXLHA4uXOrO8kAEONB0VoiyFbgf7nAguhxuGInj3nTaTFHwDltQQLRRhRnJCWMivx9Ju",
+	"JLRaNEMDx3GFOFuV1hS/bXW1TNzZ98cpwsuDI+4hu24DnaLIW6Ap2vNzwSJXCJNhUptrElGBxR2xmqY6",
+	"tmEzmvrn5HC32s3uhRZTTotwasX0Bpniy+L7mQop0KdcC2nJiDObgnGE1zKPJ0zwbOx+AJmbPKmQj6wq",
+	"hUb8uJ/+AcINMssJfKsFkMi1O5zcpjO/r9Sq0lW8YQU41NvtE1V5wx41NkQ0aQuDjTrfaLR936izUkxa",
+	"YFoeHbP7+/c+Y1P6gpEDjem1ZG5v90+jxNToIKSVB8ZynAWKIqQ3IgG03WthCTb5I4XICbwsclaANt7t",
+	"RjUakZWCwT3gcuxTitx1wdhgqI+gcOt1JysQqkU+3Y2KTbkdtw7HfeDY8aUVQOTqX207cW37MfApVjFY",
+	"YudHE3KgM87u9ftLM8TOTHs7X758+YLRBwiNXgtEv1dLRrffb822YAvblpfsdKy0ZYawbwIlcfsHamnt",
+	"Kj1Y9L56dfLY6+Hm3v03rszf+TMtD5DXeS3EVOgD982B2yFpb6uuCLguCgbf+jFGACErPMhqG+fghzUP",
+	"yEuf/Lew7EwL/rodphfjvoVuL9/Y8geMs788ff6MvaBCrJBWEaKmyucJS3cQBXOHbBMS/xHuVwa03D1K",
+	"BxLO5vHp18j9p/RF4d4euOJ8ItznzlARcP2Ikbwu2ojGdd3MVviIGwpMF+2Yacdfs85vu63MUxveHQYA",
+	"u4/tfIo+vjLi/XzsvmVXlXCla1ZNw0YltzeUi65ukpHwaivx42+b1a9c3nR9KuxN3PJjbwqfg10jLSGA",
+	"VcScPnREWYoqj66t/MaEvigyCK50pt6WeB8S5co1GKdZacOY8ObwyLQ3KFuYISh6Z1rcoDDoBtdExmwW",
+	"ftuyUCe+pk3QgWNhM6k2skO5cPTAA12QkU3kGIKEUPhByOhwig6Nk/REUJVWYJ7kbkOloHHDeyzr+oq+",
+	"Q5DW7QcitR0MykskzKZQQGCxbFFGAHXYvtSFFSnRUXwATiwpuxwXJVGJnFt+xg3OG6fpP5ujWd3Hq7MO",
+	"VgKHywDoxb3+XZfq4wQMvdtHIPI1PWCqxp3IhQ1vYKSEyfjGlfe/n2MVFWyOWcbK8NzLxYZ1xsr6cZku",
+	"K/n5thMRMD45J/XFuWJW+YCTUXHubJUb5k5y2BrVQl4LqrsIbrEJrkVoaDWeBXmGLNlzcdrrDe84rnVB",
+	"VG4DeOcNlcLkcCBk1tDnb2IO8pxRfasgqzJtsirE3y5hoevYtS18r9KtrxrLQh0K3zdqXgeBi1jTjJdL",
+	"HH1nEpP/UpqJFX1d/sVydXW95EJjcefqy5eEHdO+E0vBDer026gZWL7Ql5OXMfly2POxZ9chUDqoi1SN",
+	"CgOELStMlN4f+ARCHapCcMjA6vMjVDGahywFcjcWZZ4OpL9pKvbKY30mroaEzeSosBSwpDQzs6nQRuQu",
+	"PIoP5FrN9vwwPESVSyOKASx1YhvNDW4mP/itZMv3fG2Cgi2+qFXoHp7E9bpn34TqcQUb1G+zY1rI4cys",
+	"8OkjYo2EGtZTqsslEcb8fGhEpmS+xJdyxDVtCHYmxkVIGVCA4IgRCD7KkhtLgQX1aKOZfC3V5RIg45Vq",
+	"mAq7axGMq7DsXFgyheBIOzOJ+Bkw4wncWxTlSfLUTDqI/XBnJ5SOiHeX0C5cmxY3Gwe7AFff9rbnBrbx",
+	"yp7p0rFwuzUx3YHCrIsW59tO/BK3H3+yPXztox03FAsovo07+g3LKa05YFf//T/0YSZR2QonsIhOr8vf",
+	"341xLuHvWNfI/vlHdyAHkk/UTFp4kus5G2nufPMoDYClPGDVJQJ8MNSfME2mlMTHupYLwBoDWZWBjxqx",
+	"iCap8c2BS/YJLx6f0kYNySc8mRpID2rjzWyhGZD+jYN5bwAmLMhZPMu0yAuL7xPoLKhUEVJU5ujTnin0",
+	"ydIGfJiiMToHdyLNJqATgvjRnrLaLkv9cDPzNgUFDpcCzdLaIYLkKAStrQeh1YxkXaNUMLO0+CxB4zfm",
+	"cZY6MqlpzFz+83/eSrb++cdWh5HlWLz+SG6qCHC+Ij5g0lm31XQtFieI9utb51tE4matYftvtGw62MzX",
+	"+bhCClnn61nZvnBWXLUvx9J1uuqv2eZVf7iek8JVf6v6utqjzXPVdorCpIV19/PihuaGvrgkbQG00Wa4",
+	"xtEh9qtZBFStPC0DQmrHBQIEt2cyYZLyIVNaU1eWeBY0gY3D/6Ibcnvx3cKSnMSGuiZmfWXh9ehM75Th",
+	"N0zRZm5O2MlZaR9eCGlv0W1pE8/OjLeyiKmeyR65PoJ3hPPA6vEc/SwoaYgD9Q+/YyY8Rf0IPQ9xYu12",
+	"/DUAPa6HdthQBl7APMORuqRDVgyzMWjb1ufxwyoeh4qihyiBHfsqMfGPuCjA18R42Wxd4LFIoluSQRPe",
+	"OdnHqfIQ6s6NMG3JSHcNmjRJTKGn6/fPEyy3LmFZC2k/3Y9P+v1+/7Pd+/f37u1/tt+/f3/3Oh+LDWH0",
+	"ce8Olzi3GPH9ahYeVaUCsIQKCZOIKURBWUeMl7hoAgm98/DWu0mg4y5doEN3o6PcXLKF3RZDeYf1iacp",
+	"Quxf6VNXO7dLbo5ZaR8JkX+ATIS4EJtyNkR530siwtWxF60xFrCj6Miqat9dn27WjfymuQubPN6GS+VU",
+	"5XH0xKfX+oSjRalRLDZOLxkpNuZLt4/FRzpvKOy6EMbcZTlM2DQkPshEUzsFn7bhHq0B0eEKQ4pGROto",
+	"vRE3CvZwPV4v1f0D//UK1cmzWgbTOhLFNXkJGssV+haRnGvSBTS6Gbvwk6YxpAJa+26GCo9CYfp94qp4",
+	"Wz24iTv9bUz+u2LORwj4VjE3S42wbY8eCymZQDua9pavVeuqzErxdaFuZtNwV4hZkUPSgP8PpC516qRi",
+	"IjbkwP1lvyid4hgWfY6gq4EI727vGXbJNWjdE4K48a+oAlLttGtHvbx5TTSF1aqEedwEETvIcziIUC6J",
+	"JrV9ueTGqOp6JuF+IlNEG2m7SS6rjSCLHOREYW8vu/X1qD4EaXBZG/magtNmmY9PZhIjLNo2qW9wSbiI",
+	"hXsIytT666dLxtA8f01ENjMX65LHGeRDn3ALtrutpPp9fPo1ksebZu1a36O28hDftMwGeb7U0rDRd7ju",
+	"No+LOplFAVEtlmvytfYgGktI5gLYhgkbA9Y1byK5kevG+gblGirIWsM6dSWuDU/cLA1YLWVXWMFwXlrx",
+	"guLuV+uTVAm+V/PCM+kl+A+ZO31RrYbv2FToCgw8eXdCs+5hblu19ScQW/8AuOHvOZPeprFvq2F1F1LU",
+	"LZm9myJF3eB6/pAEO6a/q0qF8P53Ia4BA6upi12gdDDZawTDQs3u01D3OtT6GF0oHauznGzfMeGlIfjX",
+	"Cc/FQKKhGAO7di52d/wn26F8t8cegk9mSB7AQ913TGWnRCN4SFzB0tAWBMDBDkkPnDLLl6Yos8azwhLf",
+	"gaEpIiczNmjCCskIQ3ha6DnjdiDTaD+mZKMNxZxbBpRwUSlYUORkJMU+YuxclXN0JkthzCJgYWErfMJ6",
+	"qNsGmzlKb7ZGIHfjdlwk3EJaPY8JN44eI33XJuH+Om3Zx/c2i5wOV+2Ki7Ua0FKSFEJ63/ONuGnwcBzu",
+	"2Cr9baAoXhC9nAp0zXDgirO7PTtOvjQN6e4yjnWdBFP5EkV/ZC8Ls79GfdczfG3g8tHoVk7nO+Y0er9o",
+	"/bmeD73TSkuuWD0HWm2FjjxbrHcYwZSq4Pay7VLrIczzTZPArhWtRv43tx4ER9UGA/jKowbf3CDq8t2z",
+	"KyXLUoFIXobb904VJg/XKQY8OBNx8HNCvRS8TUOP0rYslO6mQkmbUoY1Ggsqpjjdz03CS4PthrypWoKv",
+	"8DnY5Q26J/mYz0KytFYU1zDtYlwHpRGIIkbTeLXTQ0qkqTSTorBjUtXd0rZa7NN6++pdElsssHg3sCEg",
+	"J1f4bGym3aeAWLaQi4yuF3Sd1Dx7LSywSHMPtlj3bDWs8/j4653j469ZCCVwDNj9/s9/8592d/vstwn4",
+	"me14zrYKyOke0t7kkJgKfWRN4nk86g0zhTd2oKNmAHxEtrEgsyf4pla4YaTGPqzypeEbqQZSTQVoU2sO",
+	"weit2yFAfFjEUliRdtFbrlTYlJIiqbVkleqxI+wydnUgd/uuLYpN4qEsfMO14yAB3j5Tk4mSbIq0NyOV",
+	"7sMXR2yv3+99vo0KNTqkpksML8e4vWzMIuQGINOODsBCQTSnn9u0zd3Oj6tF0aSqvcEuCzTMA2wtIpTN",
+	"JAxD5H4X0AxgVlbglL3/RasCutpxazNOjZSBNRZzb0N0njDiWk/azliNXbtZ2s+2LGqVrUNIL6W8Hz32",
+	"qrxA1/u1NEbUiutQ94U/5xcCverRFZcgPhB14cawLDfBk4uda9a7eImjbr1zPXpsM1QzQwRCrSa91Zzv",
+	"y0UQnHdKwr8m07wEn+Yl+rmHDGD4FfIGL56fvkSpHds1Oz8U+dud6kuTJgHJxSO7dKp1z9SszNEZ/Uy4",
+	"zEOIl7yI+wI4NWPBKFLEwWnntTTUhyxtQG+EsIf5DRFi2sznjjgWOfr7k7YB4XFGQnguqLhlR5nWVLkr",
+	"yZ5LOXx7oDa3jkpzXbLKOH7lfThs0YG5vlwcW3B70uOt+3atpd7zjN+JyBQZMRZRfG6SOyh2JbzGCEnr",
+	"4Lz3FOUGpEX2QTNYy/rmSc811xt8dfzqKQZ2e6Wku8DumAY5pigLSu2T1l6hO2htely+x4BqhVxYIa93",
+	"XLqZ31ldexVrFNYDItoE4qh54mPQo7qTXeNktqz+2uktYjbpz1HrtupQtiI7bqRoo9bNzewkm5oUmnkr",
+	"3xuM5WmmpqIWtDyT5qAK98apOYANHkxxBy6th4MuXdPgjw2dzKTxoeD0gBo4ofrxEVrDzIlvA58dUUPQ",
+	"3zrJ3NjbxPML05JjtlkieGQKcVW3IEhQ9usbh/SsSNIf54tuczgu1/fWCVWtREJZiOIGxuR9jGzJ3eg9",
+	"4BdnghLmt0ZBXzNLcTr+GwQ3IRVYTFodMvjX6t9scklFsMLR212HtThiVwpfOLH8kPXrXhWLsyCV3Qyx",
+	"OtlyupINu+dKbdi965ZwKV8Z+Mn2GOkQFu2ZSGSNvt0gR/mCd7qflmr9/OyG45JUNKGVqlapEFvFln/9",
+	"Wz+zlEOyc7LXdeGh7MnzB+z3VcJK5HGePP+K/b5KKQkYoxDUNDR5SumNTh9Ujr4VkpBLb48JK1gHcT0t",
+	"+GUOJCpMc29Mdags3UPMQy2MHaLdkKo3Oz//3X+hdLS+cqgbI1Lp60XMl8R3qpZ0gRUTkJeNg3fpCIgF",
+	"G1RwDSF/ow/OppIi7yIQAL2uxhwVSAaymoWqm2qE/KTrwaHLOEkCr9dOHrBqLiNMAD2TGGebTgrg51zc",
+	"lsHwoonSwkWVVXFcooR5XZi/eng/tA97xzWIyO+17+nO9QNd92oNu+2I6q8efAEtnea1Z0+wSUqoXH9z",
+	"4po+pWih0+JccjvTYnOIYSukBQcFf2suz/+l8SK/g7m70CrvSjNjQVU5RqGeY9KHJRm1fHNmzPfufbrY",
+	"2umXR9t79z5lnbG4qvC6uFQSQbgQPESNos6gP2pxLltjIOqe70tuvXVEyOW5ByZcFiNh7BIF3gtdSOt0",
+	"GwniiqGZ6NXLYzL5KxiVLeAl92Ha49mES4QCoOS7EHNgxurS60Za1QnuaqjgbDzbh77eDqECJZ3irCgL",
+	"254Ya0rdXZ6gYaVOAdZjWOSr3tLzlve0hq0C8KuXx+uLtKGeIc7tEudIPqGgVC6tN9mV/OyOIa/yP6GF",
+	"AdAw7969e78yZMDzO5ie1IgAqkWYF0SnlHSJ5AvJqqTYqKND4zs8f/Xy+MDhYECR2v5hvArc57npNtPP",
+	"QjaRH/bfbtMfe9UfL/0fBwt/dP79mz/+bvvbhefd1vwj0PshjLN1kWAmcs0veblKueS/khspkKtSZ/Pr",
+	"2egi36rvqXj/JSF3Qm0/Vwcl3m6LWyaehQWKlSxQzCYNWMJjEHW+QQ4Q48tuIHz7Ite6XkSVr+z3u4e+",
+	"rB+is3E6kLXoXyu5WzOPSLKKENYznVwbnha2pm+76n/rCkRa69tKWHF9LPUiFB9wIB/QJahS6FHLixq5",
+	"1Zb6unfcB/AMWpjUayJ9oo//J3FdSYLlSQFDeVkY8mYJW+uD4qvf1gZ76jxfN/bF3iTqia625XFPq097",
+	"vuwF5SvYDIDnJrZhcTXlmNNiJjOhLS+kna/ZHLn9mo2a81qrdbxn/fL9AcqspHOlaod/mVYo/Jvks6kh",
+	"97eoe7wr9EYjD4VAU7DM8IdwK82lqG/DWQdt4N0d/KfSO0AR0i2JgIEVjX9NM7mZoSm+3Vki5BFYc4Pc",
+	"PnySix93isUFyxLVu2QmaZtEQ6zt4PpmWd/U07ZXa7yOw3oMUQYEF5m9HhpVWbQ4ph0lfB/c5Wuiwro6",
+	"T3wrW0l4dgqNRL+fUL0tfb5JHvY4ZGIjl3jf6PU52UMT68z7DaNuKtq83q0eX3UL1/qJv4dduIM/8eBd",
+	"5/+uojGsi4DwURR3TC++Ejbhbhbuilty41x2N7Q4BVXE545hvhyLyrFXLltpo7s3gIz8xe6dW9gjOFnV",
+	"aXcZ5DALRxWnY1hngSJgqvVuL7rtmlkc39ftFzsWvq+7cP3dHl9Q185A7cK6btfWsuTwBHVQgufA8r3C",
+	"G/X1DfaqvwLXdLuDr98TYQl37sp5IAe7wypDgEsk0Wzl1pzFV17w0UlvuwReOjzABjKEFoJZcWWjdDaH",
+	"DtHTalWCK47mmRUaKBWltOZnCSsL6ZzdYLERl5mfC6aFnWnZyC8cXGyXJBj+bjC46ve34b+fw3++gP8c",
+	"w38ewsPdR4PB1WePlmRIfgnCxQ2jmG8gAdwEIGCJOS76IBKTwDVezWTOrAqR7bitJHMp9SoonfVtrkvV",
+	"4CZT0030cfB5WwPYp/ZxGpFpYXvsdKwuJUMjnJKZOGSFZRmXzu8TQffRx3lNTypqMfEgoW4g12Ywxv1y",
+	"QwYI/NeHaCXTqlxCHmqJdel6L4sMhjpWRSYQfNoYhBqmBQe3dzAbYoBJ5QdD5yp2fWEdr3bY39tD9gBI",
+	"TmG7PfY4gJejPy4Vg/l1sBlcC2fZ8lWczcn+qmZ6W8yFoVw+i6GnRljDaOBGlKMhtbLMM3+jHV84UCjM",
+	"nwAdxdG7zZ4zik3oVGXYWYHJgro9Fmg8fuyqQYYpmkBUOBSU8ANXBW6A6ASxwoTp2O/fdQ2jSifq6R2D",
+	"miHs0n5/f/lXeiaZ0jT3PfZE8AtR3QmNw8s62KHELVriM2F2e+8a1nt3b9NkzRVxuAWODbLSK80uMXsa",
+	"7LeZERVxO0Trn/Qu0+TO7rR1fJYXllnNixJvYHUpRXva+0lVITsTpZLnsJEOWEoWJ5ffCbXTPsGT0iyt",
+	"FmsxA1RvIB+QZf6gkVC/psPye4F2XVrttXQgqT+8RIubKN2wqUsOl8rvOjMj7/CBXLgnk9uj0LeXv7tO",
+	"YVuJqhbyNhX7Z9yI0uWVWIkTBu1+4T++IW5SHRhiUV2GDjJrQl49oY9jx6iWvIJWMUj3hpknCyJ1Ofk2",
+	"AU2EMUH6osjjiPkJSTxt9+SfEw/a3YwdCKnO1prgF+Frn9Bt/e1IFUCZtn5YPZOZ59wa94WeiUpHf1nI",
+	"XF0yDJKbUJ4LLtlu0u/3/YwAgQaxD79XZS6MdR8gxgTMcfu1deGh3jbB3ogR4q6NCq+hEQQ1XLUIYVaj",
+	"nR82Xq2D8ZRF7mGrPIjrZ+Qd0OzeCZluApN9s8CCJc57pmXTnLrITm+4ycVFgTPHOpL9/Hd/z3aXJfwK",
+	"J+yGkWZGlGJJYLzP/exbCEdYYPimMmINlhfnDwcNExJD4sVtL13/F/GBd05o0Fip0ONgWeBa2KKMO7pE",
+	"QZwmRmHzlcDaaJAQG+5kyZYemu9nnFIVlWpdB7N6x09dK/Wnj6M2628ir7KFV6ehN/UXTxS5oEVE6wMA",
+	"E22K5i2A4rcTzZqL26z0myyUIKTdwvgQy1HAhfRJiGJqOikoIho/Nt1lTP8wvq0XP7gZGtVy/UvYk3eM",
+	"17+0BZNSuhIp4CZ1KZJGhU3gqIeNetOw0k2xspp3THsmVePhS8O3Hic0WrO1BYQGBufqmOYo/qgWbuRN",
+	"RCEPXIXrVe3C+h6ojbWNHuE2jg/HbFbki+5hfHt0tP3o2x8+f7sd/9zf5Ofu3ttWndGr1mixI4bxYui7",
+	"m6k8pOidnO88gTCwmfv3j9Pp5Nu0oeNyctcSDdf/a/v//e0Pu8ndJf35muuCy0xAnsJy04SZmElxd8d8",
+	"t5eSA/SFq42NZjKL/emDx8TpgwMGSkOWTtWl0GkykKZz1YW44f5PP074VecqYVfDSSG732W7JFjjT6zG",
+	"THhZ1hywKWZ3IGuOB4euCdgVXINXMus44gIqClDZ7+z2+r1+N26e/Y5luz/9eNUKNrBufpJsd80Pl4SF",
+	"NI6HB5yHZCbZbuum/rqiCI3MEghA7LAo5DyC+SKcCUeanIPJ0njo+L6dcmMwmUqxruXT9e4FFXS/HmF5",
+	"6nsIs/gQ991yfIGb+HO9a4j/Wjkkl8cbVfkJ2/M1//YBhlD0f/qxM0L9D3ChLkKiu+P+uOE1hBW2wfC1",
+	"JoVedU0yrZSNQKCJTtywW5vnJbnmEg27cw3fFpCZ2lcCrtk3v33whrSZlQrUZ3JzCk8Pz7qmC8iq+LHr",
+	"I8SunctbCzSvMLgXOEaXNRKnrgLQwYRsxmFUrKWQj7gIRzGvd0jzm3gx3K1+ruKVjWLk3MGMoMLr/Mua",
+	"finxHvtwgLhO5xuy77QKjhO4NNyXPiy+ET9/JjAVCtyq5FXXYkCM5OaLBrlf9/AtLHqtosXhXKOWWDjX",
+	"i1dnIQtbQIQ94EARIkimpC3krJDnKescw9PYPyDuUXxjuopoJ7ry61+docrHoZrahomqbIzrBr5CN9lI",
+	"8bDX19TU1/YaCaHexAZLeysAv0tgJIKa55ID+eZmthmk/WrEomcujLH2WcLIYsD6wc24wpQAyeGmiIZL",
+	"Ur/1VzCtN741P6h78jp3gPdQjFa9bV99gwGVx1zmRe4TiW2wpwA7VyxB9MFxCB+qmY2VMsvwx0hjt7Ia",
+	"F9nKZkYs0TlP+JWLvqQoUQjK0UsUHiXX58JYhp9U9ijLSxdiypQUzjeKMNRmMkclUGFY5mcrZv8caphU",
+	"NhIvbqKZVVa0JyPmVcPYlHldTKck59DljbmID5mYTO08dqNvM4DNJkN+ZoZt8/Mv//XNb08evvGzAnzu",
+	"dpUKPVAIs8D8tvXuhrMQIo2vOyTfhA+bh6Sqojbcpfsk7MIkbGu3GsvPTWvI/RPBjd0m7axx28n0QJ9w",
+	"9V2/dy9lP//N/wa/5t/tpe51LdgCmGg+kKhGIAakCa2DukWnd+gclRNR5JwJy3jZS9hf9gbyeKzVhFt1",
+	"rnvsC/bZZ/uss9fv73XZ3u69bs+rNnzfoMHdHVAX/PSP5M4N+dAXNB6ROuMKVBi0zRnPtDKGzophVrFS",
+	"nXfw10CePugGjD14XBtGN3H5ymC8VB7iJy8lO31w6IIg+UBW20qNPDFBmxRuPAqKDVoTd2J57G8BQOZp",
+	"2A1Dhetkes1wcDf7pucbcRSL4uOjze0DPoPOxswm0Dd+hg7Vgnnnbya0Vtqjtw/k0pPE+EShqVIZjA4l",
+	"0CSpagRoorSA4Hgu2ZiXozai1WMPcTpIDCUQBfQ0qc6mYYUM0zGsHgOaXGnUQgTPqLjCyBJTBf8DaAFu",
+	"zqEaDSeCy5R1YAFIKcUmKoeNgN6iB+xrrjtz2Db/+rc//eNPP775v358811n71/+qZuwf/knmha0dcBw",
+	"Skn7hsG2UZKVEj6vMqx7thTmFFZhIKv1S1hhhcZphVeMMw85wLSAeyPCxvMT8y//RAh6Y3Xpybcwtphg",
+	"LYVkqVSSBpV2e+yR0mxxmO4oDaQ/S3iSq57C5i4sbWu/xU8f1LEEJMWSOvpAf7nfe/jvPDyfu9/03OC/",
+	"DoqgtiRrcuKBij2jLoTfj+XF6ffa/lXj2cLvvZZC/67xbOH3QqHaA4d8EH6/gHE9Hz3FUcWU9/k0MOcb",
+	"IQd5qlDtaOZoQuLIiRfXR0VZtkGAktxsAG1hjWBbjx/yNtmq05w2G2zTRFkvkNSaXnkvudm5CRLxqikC",
+	"f69RIcq8ctCt3H3dvL3XCWu42gqELfG0u/06kELk5APnLz6r2JlYdrl0uPROcET9fCmprCsJEG7nIgct",
+	"O35MvagDibA0GvUBo7pprpCtgo+RGFCWjh5z3lLs7gHjcAe6yKpLVVUJF5uSguXiXAvoM5QVIockH7AA",
+	"9++x3zKNoJlmyqWBIZBHGN5PsFqf9bvBSaqSkyLxaC9p25SLGy1E+99MHN0siPv9xGKvLHl9ZLarefEY",
+	"ou9CNtOFnZ/CSGjEZ4JroY9mdry4j1N4rHTxJ+SMDtgX+C0Jxhn6uHmvOobOaOag5iqXsNSpihDgDYxP",
+	"ac3PFb5A98j0kBkh6JaijDqFAh+89Grbj3abnNIc4A0uBUpa2KVKmBhbO916+xbN1SO1OCRsH1yyhCYs",
+	"ZVPL9D6TyBiV/ExpZ7yJtE6BNUqAzTQDyWuvF3JbJWT6oYQujuGMOUDGs0xMLZeZAM66LLI5JZUxAmbJ",
+	"S5cJMdtYVcKmpbImcWjAMUqvwZM3k6+luoRb46sjn/0VquSy5ng5kAP5ySfEmNEiefBcbonL7X3yCTsK",
+	"/WMgYbpU/vFY0BQ4Ks5nWuQsg2XXBfcAm1wHHCTD4FhKoh7T2VlZmLHI2fmsyDm6iGNd1bzT5MDYrFPH",
+	"EHLoOXCpzm8YnjiG8PT5C6RiAznVIhO5wDq9NlUKkfu5QLb+e5cUOPdumy55j1O3Epb9QNKCuiw/bpYr",
+	"GUeLqeDevxkYM68qS3F2f/MbdqzkhZD4bCC3CQmIrikXgq4FM5K/FsMMW31Z+KcByKWTkpx6wIKGKwUC",
+	"zxgvL3HBdGFtgGkhNlNc8cyWc2aKq5Chg5csL85x1zLWSff6e59u9+9u9/de9j8/6PcP+v0e6aT+fdo9",
+	"YC+UsedanH71xJ+SSZFpRcAxJmFGQTV0r+EHuQORMRVqzAjkcOffnRuU2EPPOF4CRWmF7sHUVMooPH++",
+	"yjHeLx04lt4fMiHnWoC214KBfYkRbTQ9dqLIKx72+nQqZL6NIpkHXgQHEdoScMoowzmeGRaSUlOtJPGT",
+	"4chdN4alRZ7uAEZ+Sv7mUCTnlp+Rfl5NDaaIYmzvu3t32TbbhVlyU5SVhZA2YX/JL/gpUiNWSEJIS9z0",
+	"2LGY+OnBKYGkS7BNkKAUueAH4DVCiSs4I8f3wrAUb9I0JEFwEFMVVjx0Cb6rLCT+Y6Pg9AAbFatVXaVV",
+	"nitftXRLDhk3ePBnD3QFE0Thb6cVhUPLcVapVJeNcVWqLnGb4lCf4XzTzh8VEkb2+OHDh9uf3dtnpJ0x",
+	"PTo9Look41rP2TP+DCGFJZaZH+KpcA5PuES5EqT7EleFwV6TKR5f1mzvnrQlwH6xunaJ0hp4J1ytlO1i",
+	"70FdlHptAWcGdrAUJY7IcR+M7l4ffcAccSYiYFgnbWNNDhiyJilwRIx5fWuoCibJ5VTgwAqXJW40lLpJ",
+	"7of5ywjpBz0RsDW/y/Fq0dDb3PiNXBiWq4yuwDBndG+eiUO3ew0zYzWjiijCpDiXSgs/GDsWc5YrLAuj",
+	"TFzajZJboZmDrjeM57krQUuPhFCNolvYJP7+NImj7ybxmhy8HX2aDC1wJ1W044DtMqvYp/vs6PT48WNW",
+	"CmuFNokjfVg67QHbMYT/HMB/ttOEhsQ1ihROUKeisL+wLOsQ98fSilSB/P1KFgg7DTW7QDqoLYql4zrg",
+	"1/t7AaxFZiCPWFkY63Yjl+xcq8uw0yiGpJP+xcMYbx867J+42y3tYlY5XFdUEEDSfZhDWCHJKJPW/AAm",
+	"W9OuPHBCQMo68C0zxZ/EITFf2CE0NtZkJ5cyB1nzLh4zmEif8r/jMBUuCjUz2DywblHS/rQW30ZcjTZI",
+	"LOHrbhKprzDqAi8G46NH8GP88pBGQSfCBXBYMTFJvblqsZ6JK3tMD7vU6TE3w4nSEMjBqu++5OYpPOz2",
+	"2B+EmPqZCvvBjfX3tVYux0WJO7CqlKFb/0xAbhecS9pNkqGnfxotZJeOIBaPaj1A9TXoEnH+Xb6ac3Ho",
+	"SWknra29YwNwB7sjjQolAxOt2FSVJfFc0AaeuCP/ujBMTfn34B1aef+mL/i58DN2iLvHjt32KjLB8gJp",
+	"JlFwMxOY+gb/IumUwqXcAmLKm/1+H/c9bnra1sElo9A+V2KHO5RklHAbWYRgN3vvjWbmIORtK8Y2iRhs",
+	"0wW6jrniS5GEk4XnA7v01Qwu5zB4qKwSP2JKmJVwiqOTTOu63+/DFY35jCiGLf0eqlwMOwpaZaKZgRKA",
+	"gCWkdaMh6oZyzkASbw6rnTKtZlY4jcEGQtmRC0TCoF2BQvpAeoBRaucAOvKGfrA3uIRv2Lnm0hr2ZiDf",
+	"bG9vh//Dh7F8x97U4vzeRKF9MBAi/I5YE5tDL+F2TejjeC0jzbNPB9VlrtFYjGRv2JPHT0+JM9NuG7yh",
+	"+j2P6ISkSDhKXE+qLWVDfg88WUnkKwXcq9KZcM3XhVb2BkQrY/lo1Npsc0uCdooA5Fhwvz5kDiE3Nlw5",
+	"1q2+v6kHJCWzN/WgUxg2MpjIxUHzMy8RUS+IVYY6BvJhTbhG6kTUgjYCXUNQPcl/pG8XV1ZIuLgHskUW",
+	"P1gIbf3kE2A4lBSffOJMARM0mOQTsj76keCVBV0QeYibJeOJpmNiXfIbE5gb+NpLoaWwAtOqDuTzqZBH",
+	"Lx4zr9rwsF8+pI+7I1SNHHi3SutxwP74LWSb8fXc7fXJb8y4Q0EThYIEnI7nUGgPZxeKPH4AUp4UmXUm",
+	"YQNs25H3qE/YhJcgwcH+8twf7oILBbm8Qnjqfn/3kJjXIo+iXNXMgpbBzRR1CL++22Ppzljw0o7/BEzB",
+	"DuzDOf05EVYXmXHpK3bUVEg+LXpzPinTgURhWCofnpr6icOJ6HrC9BCNRJ4KockIF1KiaHp//95nbKrV",
+	"WSkmwMVOSRdaKLnjnv4OMvanCU0KH8j0BT33NotC0lAL0AQnLMUWTOoEY1IEjUYCw4CJX0QOhpMYcKZy",
+	"x9bCRQI9+vR+f5feYTQHbCEP/Awfk4c3XrYh37DZ2dupZwBhnXSwNdhKPdApXhxYvntIrR+ffs0yUZbQ",
+	"bLpTFlKYHUfs8R/hfmWQTNATYuBOUqxwdxukxZxNx3OD4MBQA/JP0LWx4LnAacbHu13vl+4a+mzHsz6p",
+	"6051b0N/qGkfC7t4Cfnq6I4iFjBh6ZTb8UGRExucUicOHudiMlVWyGy+/QcxRyaPnAycxDQpDGVTJJ10",
+	"PPVYEWmACuMN/5o4bOP4qR231Z7648HMXFp+lbBLjVbH+dTFpjgWLYqV4FrA1XtIm8dHf4Oxqyy3XW1n",
+	"wEJrwV8bxini3WerdoxMh0svZsSWRX/pDyScuYTiuenY0hfAimiBPEBRzRF7LeYoFe7v7cG9e6/fJ30a",
+	"0I2BHISUTnSUBlsBiyx1rOawyNNDZ1CcGcHOoSNWxTJbqWALP1MksxdewK8kf6woCnbHGQ46PhIjPS+Q",
+	"/tW2E1K3H4PDPmfx9CkpUKANrrMoAiLVfo3hNF7DhS6ApTofoHccyDzOdxGFut3ebq/POrgQhTwnuBGs",
+	"iuViKpATVNJR6LmwXTzkCxIOcfooq0ScKoqXKQX1XQZpBEGplazUU1AsRwraY01pinFpLlG5Ezh45JFv",
+	"gTFE8QJlYgzMcnxfF6unJfEKs401eGBVQXrBgZBL4sEpl6kspKA2gr7nbF7NEemKvEItcEI1jiOSuRcz",
+	"u3e9kiUqcYc0OazjNyDp/Gi/daO2K5WS05FQhlDHq6B049Mm0CGPhAWvVGMdlE5zspEzJiQyasHH22vk",
+	"3CSAEaBXFpkAogldOZrybCy293r9kM9NC2yVlM5PHh8/fHb6kKwMriBYEQg5YasqDuH0unQWB3Ows3N5",
+	"ednj+Lqn9PmOK2t2XI1YBtGqbSnqhgiKtjIuA3Zvlz501/bWwdbdXr93l+Kmxmiz8Rc//H0u2gKc3Lbe",
+	"g5hokFLpAGmVCWPwHi8LwK54hhKFZwZ6lJuCdvnjfOtg6y+E/dI11XAR3Ov3Iyh++DNmAv7a2baIdl9n",
+	"T6MmyGrTGAd2E2bjXr+/rJrQL8ppJ3mJzEvN4LV18Mdv0eFqwvUcvKFASS0wSMZiAsQ/ViM3W99CUc9G",
+	"LZ3kFxr1p2JmCFZJXPndy0hn35zfQ/pEsMISP6kkqBulsJdKv8Ylok4ojVoE44AjFtbkqevZtWsC/dqZ",
+	"lrxorEbTqLgw8a6F9zH10bRNwjiWLkLMvC5dCfCd9Px7UGRGFyeot89mBQh6aNNeY9u76jbb9r6TG0x0",
+	"3HUQPXz3E/bvjp4+eR/z/zJW966aepIo1qQxQtbIb7hYvZ3OcXFFyMORsHv9uwNZOYQ2V4WlE5UT0U6h",
+	"K2jLSSNyFtoq0BKLlxUabEIS6QNnW+HabYXc+9J44CXqJPakk54Iq+fbmL827bKZtEVZeZ9DzQZI6ESh",
+	"nYD424ijHEipbJEJ45yrRDnqQc9xe5g0ErhJE+JeJKwAg9U8cc5jpBUr+fmSs39Cq/IeyfEJ+nUIY9r2",
+	"KzbPrKL5vPH+hFJ3ry91SlP7SvILXpBv7qqtXfV8xba+2N1B5czSjf3JJ+jMcPDJJwuaH6W9AgMZ4COo",
+	"h2l1aRImydsGddUJ45ZNlLGVoh3cWcDHlezNKSMkBxBaUO3i7dB5kR9ghS5BjOdR3GvkrJyRkzYyKfxk",
+	"9A0Y/3HjhUQTThHgnhS5bx25fHo6kB2SDV3OXn9si7wbm6WBP63nEFGg7JVCt+3WU8F1NsZJikFQDAJP",
+	"wZW0hZKoR3Y72KIRbCVrblTnh/M2aa+tnmqjqjJyuPl0v8XBZmVtRb6srr1+f+3KcFc0K2r1e2rJlgtY",
+	"XO/t8ONqPVFL7yqNkCBvk639dU79Fzz3flhYZPf6Iq8kd/ptkVOhNejEI6XPijwX6JW1v3f/+hIvlXrK",
+	"5dz1zvxCdCxQLjoqTXg0uEmik382d6c1Im+E4wneXgvq2YD3sJhR0xNCer0WJax7cl1HGSnJZoMoKp17",
+	"r4qaNIimZqfqc2oRyc7mAwkuF9HLHnvkDIOZmpwV0nm9Hz17cMhS4OyQWSiki8kiqmdV6tLRwbOEwBeV",
+	"rPegx8DsZRzmTaVuzoIDDyapB0UO2W63vII8mjDSMEXMVfcAQ2BYi3l0IGOjXwpkPphTW22hhwToIiqL",
+	"4EDWzY6E8IJjrlUN9sReZfVD/xFsAlmvgXQNVKa6BToOQ6YFXY+M11Cw1iM7cTDaMqJZ4WndXp0h/fHt",
+	"VRkQVNarsgaHs6zOCoxlvUoDHg1UWD/TD7kuC2Fs/QAk1bFB3JmWPsABq3VgndjLxfYh8/Bi6+Lqmtat",
+	"uoW2X3hvh2WtLN7LAUHrXj9yTt679o5O2heoOj07laF9673e6LjB4Ai3XengZIZ61YAl+/Fyv/XL/Zjw",
+	"NwoDOsbo7na377K7e73k2PWrfOeHIn/7Hu5zDHkla8OosABDjEqV4BGsZCYiLx4hzwvnvphTaBc9GTo9",
+	"Z0puzoVxXhFa+JqWSL04hYu3zzVHDEs9fvABztcydpkwgn/lR6q/f32JZ8o+QvyOP9MzeERLQVu0sIb8",
+	"6p17PnqreAzO9306b0374A17Ls8WeeZSOE3lyeIFeT2TicdKRXbcuU/E0kZhYrfpVSdxiUz/aziO1wmw",
+	"OE3m45H8FRzJaOuho07miLw/ge4wvZNsS0cueKTjdpsq804Hj4CDDOMg31KvE4rnDYG+kUeBh5kKAddK",
+	"F+eIN+IdEu3YX5VVuu+ykOQfxAo0wqe+mqEagfeHxbSHrqJwj3rYIDj1xoL/QSE94wFY+lR7oxshVzuU",
+	"CL9AZESsYh+r4sIWO8KRHaxrIBEKACF7lBRB320F6DzJ2wXxU5Dd90n/dS501xGgMD3OPSSdkrDv8g+k",
+	"hz7KhLz3PMAh+oo6iXAgz4U1zAd3hPCkwibBzcKPtvIpRYWmz+7PuBlIM5sKbQQOHnVdvmtgpjXNamqu",
+	"i26OD8AQ4YD+au/JYR5bU85ZvuqHk4QYH6Hfkh1Isj1wVB9gmKsUAY+XPffQ1yGjOVJ6OkJjXkh0Jj9z",
+	"/QeX4f3+/WQg0QsmddhdZuhKOz+cE4Ql7ezv7SXkfXVGWRk8C1d5aIUbFOo7DPFdA0ndf3z8JXu62wdo",
+	"h729buLzVFdhXRCq5RDH4B5yLh/oYjN0uyo9oD7QjsPgDbqk8WnYYrDvYWYcGoUrbNA3KnX72AxDlMtQ",
+	"iktwWbSsFNx47TeWcUEi7hzwEh7PqR7A5fBvht4VIz0IGv49CG5Vo8pQxHV1jtFDwVcLp6CEA1QfhO9C",
+	"pmbSGuZiaX1VXdeLwuW7MkPwv4mHUQsojD5Mafoo3sutEviTJH6JurivGfc9oJZAPzbEYN2hkLkZSiFy",
+	"lzk7PXCDge7WyABMABRkzpOtVJfeEQS6Ny7Ox/Cb1lNyjTYMeIMNwViwNDR4iP5cUIlzd6a+uB4kGGiD",
+	"qbgcKJr387wczykQ4VxIoTlGYaSuVOWxg5PcbWNtiKg/9BfFOzI3eMN+ofL5rfE1oWeBG6nHArsMHw2+",
+	"avfDiDkxlCI5EGL7T1S2BHLrBbfjQMtd4YSljXsboXfrQ0xWGdf/B+Pp+mvwdMdKjkoHPb2/u0afXvB5",
+	"qXj+UqknXJ8LKndvnQmAFHNKW5E/FXnBX84p+cj+3t46hZ3vEbCBD6UF2+2fKdf6sOm379zdUJ7knin0",
+	"ezriZr/PboOThQiD3lSeryU/3kDHgwGnpbJokcDGzMV56kb24tlfsGLCz8Uq2fBFqeyLZ3/xPqVD7MOO",
+	"m4UWpfBZITlp2tZxv8FRfpQHf/GTBRsnEgQTRrvovetj/C5/D0fqtIpoCmxggE2ZcP0a0Fo8zEPIyZB4",
+	"cLVRkQvEhjjjMidZBoUcTHfBplyKEvNiXZK8gsciOHhz8kpEf9OBpDA1X3/Ap4iwL6B2Z2e67niffv0B",
+	"jre5OP/d1Y386T4e6F/pgT79+sMc6Crqbz11T+1QN8/w4wWgFRgTuduDs04Vjh4hvLgBo6hHfn28kg4p",
+	"mopOc3XKKVnJBS8ZtyytnqeV9IbSlZf1uj22EArSYy+qsRNSQBOzhcu5BzbBwJmxg+KwCWK/uOg7qBBM",
+	"0jAZjigc1hDjB9JFiYPgRqQpBfwpk0Lciw9JISyGEmNPZ9YUuahB5ol8IEkCVJoIGeOkiO+xWGFPyAuI",
+	"l1ch4bh2MOxmIPf795dLddGk/OrkuqpvGwl2/ffSAWpimaHYqdemIao3IWdbB3Whc6F7Wx9lsI8y2Hs3",
+	"qMdRm+gM61GvYs+46NCvecesuFO0iOBgbsOIcAISo4ksdYSrF3TbztoeuEXUbVUmeHAhq6waFJS33PTg",
+	"cEQdk0mg0U45B3phKVGjhyZ6ouWwLlwLD11IobZBXwNb8AAAkQi6oITQUQfsUWVzMM4fwGn2oO4KBabz",
+	"+PT5zuOHx2z3s/7evYH86b991tvd7e2RVYDluhhZovMuUNB4/zenafeIXW7CKBysMI77zavZrKaMdVwY",
+	"NWF14XcQjnwKX6B6cEw4sgu3yElYfPErdkQ4qW3RZQ4JuLCFAV3dRw75lyZk0cbyXDLtXOLAiALwy0AF",
+	"btnxN5A2pfPeNB/dglPCyxA2T9VG/L/TIT14RBIvapncoa4Qfg48g+vUal41XAmqSQiSSyIlHMbeIhHw",
+	"gnZCYMhYTwUYG0hkBTJ9h5lMaaBX4vsZgQ0OpMNtQwqEZYzltjC2yBLiULFeSkbjnpAmEEL50DCKjG2y",
+	"BOEkCVIDVh5MgTKkfPEMto9YgngQbmdasI7kE5G48GGKGfaGlpKf3THsT0qKBOaRA113CoYaRo5RI3uJ",
+	"kcsyb9Jm+txRpIE8/fJoGwBNnbwCSouQ44ykj2B0RvtfzTCNmHCrtAknuElePHj0oUiq2+XvrDR0h+Yj",
+	"Df3FaShqfHQhLbyr4bG+l2AJTzPxm1vgA58qTMIaE/+mCwSziqUOQsjpJ3wS15RoHo3UuIiEzNFMsn4G",
+	"QiouRWsOfnaEVSPR8v1w+UlJ8scQTMpuSDZZXllWwWMgyOgKwAfYUU2/QDmXIXe/0Isjw6CD+wfM40nC",
+	"gxEmygMO2c60jFlkjki6Ul0SITXtvBrUcxts2u3L+tS3X0jOX2rApV6J/KPs/lF2/wBef00otPfq+Be4",
+	"JnMD3ja5RjP8sMmYXTr0ecmUFIZZpbqVu9SEy2IkjHWwfXhlCUKCTgYSI2uBo6uzcvgI+Tnm2LlD4jKj",
+	"9N8+rWVg2cjZzKebcQwcUeNL7iOLVwZ6nVbT9qsUdUP/lsW1oC07DOIjm/YriHANq9Hu7Lshb7ZEc5e8",
+	"Mz92JBkGx2sli6zaQwdxGD5AnBuGuRfwNPrsC2RkQRjwhtDWY6lvz/NqPDBld0z14aHn9Dhg9WHyI/ot",
+	"TEUyY56oww178fz0JXM8qdOgQYVCs+BtGsRBcIBVpWAd3zpU+z3fdq1oh+dGb5PFN3IgfQcJUXcyM9bD",
+	"aEdzRBwkgQzCmog86OpcFCo5MQclpnM+JVyBbVdLGNORw4XzU52ApUhlrzHT3EDmBV6NOeMZuvg5kMRD",
+	"B9IPCkBelLj7oBTxwPRpK3JBcS5/nSxkOEa/kBtgaP9aqvuRnfzITn6Ya+Xdb5MVHORCyt1bdhEiJjJu",
+	"pQrpavEoQOwEmy7j3r5uZO/9FfJuC2mTlxCS2sR/5OB++aP2dTtWdys3t8LZdU2/nnU4uXquqeXnjD2O",
+	"YMqh2jqIfDQYJzOdcZuNCYIVGJO4oe5hQP8eyAmfBzuHFFUKlbM5G3NE/K93ysXa+IQvoWFKjhNslo6z",
+	"A44NM8CFRYJ0Iwq4nRIzDXXrttrC+mQFNVTjg4CHNpC7/f5PP2Ii/h3psl5DFb99wPBNB1+xn//u75l7",
+	"3fXfYcw3cF9gsxgLQI3/7YM37Of/+L80IlCqnFa9eJKHVpVCc5fmP02IQRxI79v00z/s9dlvfZQTe3XK",
+	"Hr44YqffbH++/yl7irWzz/v9/oNYxVtfx8PFYCPqFibr1EWOc5T4mNiBrGWYwsc+OMnHyB5VwLk4tVIx",
+	"rYLdyis6gbekjAJHrdFf9bgvL6/X8ehDGNhAcgubl8wpQOxZMxysVrnSzuc80iAjquQlMNuHjSgyZ10y",
+	"Lq3rQuwZ3Tk9diQj/4K2SLgaefauAdSFwlIBYQaSIHCJJwf5gQK1aMSgHyFpJa4sGUj4iHtsNVwXH22E",
+	"nXcWJ/RvgzFZzaWhwCzvWhFD8d53ORqc/FE6kBwPe03KZ1Kn0wAACxD/GEplh/4d5HDw6vEqUhCOepzy",
+	"KExVVUkca1dV0fBrc98Cos+ogKA8QJI+wJTH8WJHXg9+G0WRldBm7czhqg6jA4P48JyC/pY4y8Vk/lcn",
+	"/sSd+4UkoLgLNGP5OixMiMRXMwsU5qN49FE8+iAOJqiXandDqPKsrMm6BTboeofsKDPMzg/Vj7deuHIk",
+	"8T3FMUUGSDzpFEqP+aLqEQ8+BQC3dNV6X+uBlOqyexByoLsq42htS17LSJCxLDWnQ2D2QHaksutcFsTI",
+	"wcf+tiEvDMLPw/zq1sFzoBEYEd/xIXJkeZQglEZ1yemihQkidw1keBw7ZEQcaE8DGxZyiFDqmDdIombQ",
+	"zLJx88YzXrepylxopqTosW8a6dmpfoicpluNn4vhWM20S0kScU6FcfVgBnmaQFoJ4HQlfuCT8fTYfn/f",
+	"ZynFCHgt0OePMPAhQ73SuVnlbvJYPoKaNr7WKvlh63p0uuUBq5tAyy3eJhNF7k8+N+ghWsJxcSm72jJU",
+	"M243x05774hJfilWASdVS/9R/P9V+NnUVwWOKnfb8lZl/+uukNsN8DkyLCULyvI4ojQhwShWxlXzMAIT",
+	"RMvlkjqikC5cL3B0Mef1QIacJGvemGnXpcTC2YdMaCGnE3r0ZK9993LTGiL0TDX7j8aS/YEMzpHk3bNc",
+	"Rqjo4buE1sRU9T3JC20d/Rhn81F6+Cg9rEPyv5px4EnmK2jfrQbcuMRDa8kEDYa/JFjZGGyL2FSftets",
+	"jq42ywwnT13T75EAUBOrTB5u/B8hWG/f66wso1TS9b0SR1W4b5bu302sEzGLgQpa2H8sc+BxYafu9jDb",
+	"PoGfE9gV/I0fu+zB84Gs4qqqAJHmnvdVk+R4Fb3p7PV3AUlKIPizroaOmG9JpGKl0x37EzeCyAbSRZFB",
+	"36qu+4RldvEsVq5pREcG0nfUhVxh89p5+4IydA9zZbwca2FIbV6KkWXoYTwayMjCkDLIQRhBzt4JKatN",
+	"nKIlKPHNWF3iEMoSA8FA0U0KAIdypwWbyQKSIsP4CgkMLgm14J6yQm361COJvw82hir/hRgXN7IWmvXY",
+	"BwB65Upj5Q/DCiNYMClLkbrdpkJ2ef/o2Ln1U/rdYKr8RZJGN9XOD7Bt/kfDqfrIiv0KQ57x8ARqlFRm",
+	"v5jlUVLc4DKrc19uT98CE+a0lGSkIyDJGMk0XZ7djihpW6oJsNpVmi385/1o3I6YmYoMdOYROYto3Bp6",
+	"twgErCXRz97u/mf7n9/9dP+zXzDdz3LaWfGjH5Vvv/zxfy79atz8fDufuA3PNfmnOV/ZhAVHWx/hwDpU",
+	"L7JOhEKci1JYynXbKmu9oI68T12L0Ga1dxl1+qOkdes7FSbdze76/pg3Fqu8sznKSZ5zR8f8hHE2mpVl",
+	"LdCGdTDdXhUZggJBF8CRVenyjfPKnb/jQvA5vGFH+lzJvSJnY27GmMB1hTjwwqeyey+YQVj5L+T/4Ea2",
+	"5Fx5p/qtjzzuRx5300tuKiQcNLeHNicftYtu5wekA2933JW1nqWowdE6+pJxGUUxA/lgBXrewZ8BZL7Q",
+	"FO9i4oTwParIjanStDizjPWJPkER00ZOHlDvAz25ninGYd+YK/ZJNb9979fznzsJ+Z+A7XSbL+Snva0j",
+	"OZMQhbXxiTwuBdfGRX6h8yR6rdZivEQVjtfqCvIKm/54nD4epw9/nGjvvftpcla0zX3n2oOPUDHrNEhV",
+	"EpXKJEDe1iHLBvlgG8utSDBvCqVUwhtRCmaV5SVZqVknNeJ7cFioZ55qJlsdyLZsq2yzZKuH5L8AZCGk",
+	"UoVCIyFyn1wmRFicifMCUe967AuBJgj8LmnmZS0M4+UluJwZYVkH3XiZmEztnNImFuiW58yiRmlmoCvJ",
+	"QKL7R5Wf1XmtUdA+PHJ5qNil0MInHGGZmkzQuNIbyEc4O9C1eo+MCKh8WEWwvCiZiQNfLddiIOVsciY0",
+	"Ad4RLBN52iGjUvnMG9cuupVwGhcK8gPp4j24pHoDokvoKGrDNO0lno3dZ4XBBPtWSN901BxVkvEZ+S0e",
+	"YEAOLgFCETLlvR4MBd70cHtihI973uM5uO2n9MI55pMTUfC67/mIm2S586v7Mn6bdjGcuNVJMxQIr+JO",
+	"YHSDjTMaVamGoOtwXIYOKit8HPuGKinMUpXJCVb0EBd3Yz+bONPoreZE3e3HSVF/4czlNEWPRLs7fpzo",
+	"9M8jBdyfo5GCbgqkuGrUCHCq4bvQk5t5iejZ2m5/VdjeIjK/0s5UDkSnEyHzVUnYHL0h72yEa1XSO8BM",
+	"BdIJMh43gFfB4u1yc8UIhs1gpQPG2V5/l6AZTE0sjEgsBqHNPKAC0XSSMC94WeTsbGZ9LB31LOPSwTE4",
+	"S73SFKEG95egJEwJpqIKS4vIh2WC+twRUFH8yHTJbRDQZEgTlnhNm+O0Y7CwOir3AeBWDmTOLa/S09mx",
+	"VpcSvNPnEJNJ/S/kdGZZZ//qqkutxFCsPjHZmZgrB4xD553M8QfRpBMQBfpPuISextKcVutUZY879PZ9",
+	"mBL3OglJ7kp+JkpMhsm1wZt1IDsLKbsMO1eskFbFEZq0WeyloqqAQYHxMDOGJeMDWQvOPPSHpMhrzgdT",
+	"oX2vcBZ+85vfsMe5mEyVFTKbD+SpAAYjerT9BzFHpLgJeERoYXUhYDVGosf+IOZUOx4xHwoxkITOgfex",
+	"oetdTLD7ACdMcB8+y9jePkMPfp8ZDwnOHXSlAJ0IKlmRW/J4QwdUnv3l6fNnLvtomHzGDZtyXUF2ykyF",
+	"eHfWMQpcN6xgZsozitabCNj2joNxMzrh1grdPaSGBvL49OtaQ3iPseoeDNBKgKh6pvI5O5tbAULiNjvl",
+	"E8Fei3nik+6HQSUOnNQNGaNt0bxBe++TTzzY5UCycKA++QTmglxaqnHt9Xcbyf2xF8gqeh+EFJhHRp/V",
+	"lvdETEs+x2b1TKTgWuGwUnBGK//e+nC835CNx3QAwYW1D2HCSxFhsfrhBgJQSDYqAUWVxu2axjgT6DDF",
+	"dvpDZas9ghBWKKvT7EtMfYepKS0aiDF3437/Puapo3GfCKvn20cjK3TaZQUIHlUKt1EhCzOG/kDNOIqj",
+	"qjHYy444AUmBBu4BZQnFwaEIBZnXYh6OFmydTmrFld3JzEXaHUi4ViN3bsPE1VRpC1/22DfYy2PiWrZB",
+	"XXvAQuEKw3sgycmE4LONCyz2IsjC9kyJjgGjWzUM0Nq1XPms4y9MojSpR8NNWUfhJcjL7qFLOpE22anU",
+	"xf1GzSLZPBPOlg3JIvvdoP/EDVoY9urlo+3PWQfoI5I+PDrbdBwRErYwrDiXsAG7FKGyv/t5fyA7bugQ",
+	"KH8GY1YhRWo62EoP2ZNHsETHJ08esbKQAlMAdnvsSSExzlwZtyEHMhtzzTOMUjYs/U3q01vQ8qDlRgtm",
+	"XhfTqcgP2VnJ5Wus08QvnDqWNrlCcQzbdVIcLViPHatyNpEmuI1SDlM5Jwp0ANPzhmX4EXvD/IqwN5V0",
+	"AZHLbwILBD8G8s329nbt/1BL+rqQecresLkw7A1LfQ0p/sDyKaMvQziB/9g9YEVwZVjyEIvjhVQVxp/1",
+	"oiTZ0td1EIFQysMG1F4n7Of/+L+yfqMGTw2rwhjRFfa2v0dXvBjIMAnDAqdEqqqV6vJsjNQDJCwU8C/Y",
+	"iGeIID2Y9ft3BeuzDn1CrNhuFyoC0vI8ShI6FRpWEhLpOk7Aa/qd/hHTWtYoPGahDMuG59WtQsxxkqMi",
+	"HkRPIQW39Urqy9H1rjXwvtlCNF8d+tvQpVI102ghmrFuj52oS3fTFpRZAO7rwP1ATfgWSS9hyuM5iNst",
+	"THUoPFo0ngJkEehDLP/M8bMzI1jaS6GlXGTFhJeUfRiMK8zTNSTCEqlUutu7J7bvpl1CxGBA12aGy9z4",
+	"/KBKm0OWPuPPgKA+lqO0glYsXovYREPZ7bSgatyMIHw3AoIUEpkYd9NkoizpmglXChDZOaVqNjDIO4bB",
+	"mQ6UFXcWFZc+UwWsXz5zU5r7KSRSw9mkIMSGMIf0PgE2h+E8Oj68ut5JMADex5FcF1HpaZrzGANiRxla",
+	"0ZSFH+33739KvBCtG06Kg2PDRRCapTtQ0uzgeckk/iPcL+ocPUppe7R/n3bDnsE59rDphrhEmscOQIpg",
+	"YqXAZsPBC4SVyBZoaVgIj4Ei9/p9emcSFqrwEpyHL4eLHu808it2SXyhqr1+P4ESKLHgQaZ8vcQmkcyB",
+	"AovTIgknPYYawSHAJYBUcpuoCbl8Hoa0uHyOnNCZotBXFJnIK454KpSv7xisNBfAFOvIORuqcGmZURmL",
+	"cVsOfpnxMOW9Xi/160aauSuchYOBTNN0IH/jeBlqOKK607GyCrmC7V3WcVfr4hXaHUjY3omXmkigrN8H",
+	"nvQngSYknsIMpF/KRBbwvUie7Cb93r2k3+vv9veSZOUX/fuft3+xl+z2+vDFXv9e+xd3kz36Yn93F7+g",
+	"3ePfJ1j4Xj/5Zrvf399b8sHu3bv0wd1kz03oEheQk9nm+BkRx/8HMW9R18HOwJ0W2EC8MhyOipOEMdBl",
+	"iToveJHdhpPk6t5EW6u6oZf1q/r4vfcthKujWoVXMf1VbPWyXkac+OYx1Su6GDh36J2Cy6cBVrCsQ577",
+	"X3vSnvsCb98byvksck1KtrxgVK9gcSLw5oeHZyInEgljnhTyiZDndhwrlOPUDB/O8elkdh3ei0tERGgM",
+	"Di5ChxREHeA3Ha3WTpofyAUdTkI2IVfIXQ0ho4ZbMGcoiIIY2nQFixOdovKAWDI0nxUmzpLk5w4tgZJV",
+	"4ULYaEN5AQL0OnEPZ0qVgkvcDOuFWjjsKhdroWfyf8h04B9d0H6FKUuVsYyHgzwqbHSYYwvGbFWQawyT",
+	"02K8wM28nvF+uQHD0xtv/uVeAXiAPfZMv8OhDloJJ8qi2jXYZ+hZzUqsRSYKRJqpE7QlMRs34XVOZvK9",
+	"p0SbyRW0+qNLzK8gMNfbA2jz3uoRu20/GfoksmMEEEeT1E+P834ATZEDd9RgnvO5eJXMROIvYRG0WCZY",
+	"2Rbj7Sl8CoJnPapgnh46Xw5vEyQjG/kYQGBrmw8Ddd6bCgnIHiVK1wkfU4YjjbtRGTIDhBNo0h1GEyJc",
+	"ihJd5SufhqBfP4mdhgbygdBAW5qAp57SfHWcxJaIWVlD8jIDCRoiIFkJayCWYGpH56E0pEfpwUDu9qJW",
+	"LmtdXArJdcBSP6j0cCD34ioyNStzVjOyNj6/22wxIEwWHtS+UWI/LuEsGC5tSI5opjG+F9ToNE+IB9ao",
+	"614vjlRr934JWLU1HDOnqHC7geBcI9sD9StuLWmCk2LxWpOdkCB7EWxUCzLKiJIwcFGviUquBUhTzxUu",
+	"29mFmxL4DiugwmOhBVyJS6BLQz7RBoIp1oB1gx9SbYdkSmuRWVRkeh0DNl2X2O6gXYxSmXadb5U3m8NK",
+	"+ikvrLOw1VFi3aRhHT6zHnc5UQ8H8tN4u9Tg3g5YCpsCJ4WXsB0+i7+NUORYJ0gjcFISsrQFIDnqbPcA",
+	"u+BOFVDwmutg8A3Eo82KyFkMkIs9tpGjrmmgCM/R9EJisxlIsqgdYWD/AYsv/NG40L/zpqsKLRdtaaht",
+	"e/Tl4xN2sg/ktSwFuZilX8xkDnYT6MPzMyP0BenNDetQTvKQlufV8aunLFO5IJWRnUVegjVfxwNWTQH7",
+	"+f/795SnLGHRZMPjgZxqAYpNyfU8qQgjlMi4BPWxs4AR+it255CluYCLMqUTWO0ifIPU8pFWk7RayG6P",
+	"1SetZoCcD6SfIW+MQ6WiW3Bnl9Tq0nOIlVqbD6SZwi1oxkJYdom0Dn7TdMOSzUqO9gtdpdT8fcJ+l7Dt",
+	"hP3bhFl+hvmAj08CrCF3l1SXTbUYFVduCjDaY6qM1Wo6Fg5uOWS6d3cUh+tP0USRnbkGCIFTQutNSZJJ",
+	"l+wvKRg1BHmxwi5M2dV2vNPG5WfbF3u/E/ozmkK/xwbyyyefsYu93r3eLkufn7z67qS/m7KJMAb9WAvJ",
+	"Hp58xtCJAS8lJUUE3sQ6T0+/TAby+Rcn9Or5F3+Fr2moBzSwhDbiTIJVnN64FPwJU9UGHkhbTDAZFEWB",
+	"A2c0RfdXqjvKwQkHLHF3uziHb5iQdONhnj+udQEOceSlgP4ET588ecFGmtCSMeXLly9fvgDEMBl8Z+xY",
+	"iyr7P5dsJjOhLS+knbOzWX4uLJsL5yUQZ2NEffQFLx2kIy6Os6sskShOguPYBxAsAp1Zpac68tTGbziY",
+	"lPlUsIr29CrFnzqDOx8Z3nfUptE8LNemLWgat5Zt7dXl2iUlav6jtPQryHZSh4wnf/2ZvFXXSpc4D1u6",
+	"BT9LqidiNwOF8tp3lx2qwxtpFzyXaCpbDriGoJ95Ydj3BE5WOBZWZqIpNqFdlC4RwA2iDM3ON6IyAHQq",
+	"YQ7ssiPnlhQBLAXWr/LtdgZFpzYNzEQUO1ExK3eaQRNwvy/xBWWrXUFhRusceWEW5MhLXk33oXPrIYEK",
+	"swk6H/Xg3uU1PZjgASUrYZyrwLIkGc7ePZBRqxixUfF7TRkcE+27veAW3Mtu5PZfWCPKEUoEgOmEOoEg",
+	"MFRi3kxe6xXqLj0H+g/LghZx5ywKbY2h7pC8wXlSuK1xGPwTWJHXXEBjp0w0DkNdCTBaIAI5lGgv6xQ2",
+	"RHWMuYkrdWKKHxpJAQNZjW65OdFN4DtdiO8hJRn16hcKR6/dj633VxA/Q5SurrQy3mvyI57mR+vC+1d2",
+	"5nnYjVZFdobvPdCmHYvJJrf5CjWoa2jnh+CC8faWFaGjygeNyGXCeKaVMTAuOm8eTpBuTVSTDuSCnvSQ",
+	"XXN5hKbcRerkD1QFFXmVmof6RXDG/gKgRC+Vb9oSeYOo2FKRY5GsAPJybegLF5t7G0z39bji0KPbAbB6",
+	"r+l2a3PzUUz4tdOZhVPKG7v11gSGCkmHDqzPgM3L9SSH1Zk8vpgj++Zy2eI4ony0CaupLwPXXc/Gi65I",
+	"Axk6ikAbJkGvdXdWocMO3K3qf6WmcKmorOZF2UY8vnFlqtSo68AKvMO5f/Xq8QN/4m+fnfsmTMEvhDd6",
+	"bYrZsGYfk81+5N8+JF31R4PxaufdWtJZL19vT7gVuuDlLdqtXT7ZyvjnmsD4lkzlS2HRT12Jp6FP7/Pg",
+	"NxpbCZXuO/QxjPu9gKUvbJVNUNLfITl/Dd0vE9pp+LTw6Oe+P7DVjQU4FaNcTI+zSaDG0BXN0HCXookl",
+	"dXFn4mrKZS7yYWS5SMkjKsU8qZCuiuKDUhc1kYbkpSnr/PQPjCeVkkqLzHJ5Piu5TgZyxn7P+M7Pf/df",
+	"7mLS+kYPla6ZRCiUYarFlGvnDgGxyhSWFgZKyOSFRecG//FwhOZAH+jsRu1eu5AtY8UUjNdlAXF3zqEN",
+	"zJQXELBBlqvJkyCuFHogwzhN95BFCtMELVNYhbfDIXhLMJVOuct4Rq9/7x6wn35k//L/Z64LO9h8Nzh6",
+	"aFFyW1xUeXAHMrYmZWpyhsEHVQN3XHwVavhoGJACc6cDM/7Tj193B7Lzl8d/8RSiP9hP/+1eb7f36SF7",
+	"ONMcaMzO8eOXR8fsq1dHT9nRdNpjD3u7EO/k0O4DgulAOqAO0MoCeQRmEINiUA/Y2e/fXwH92CRj7wkE",
+	"stnML6R/WxjtUvHQXUJ+X98MhD1cXGn7nbnzA6zXR1fhj8zgB0utuXBV3hyieel+fldWsFXjtUinrhdb",
+	"oTd/BgqrNYlSRYs+Kq1+DRDn73KUViuqCJh1Y8TJx8bMhAEdE5c5sDpQDesEWJTdvc/ZWWFNt1L6gk+t",
+	"JKQV45VPItPCBo0SGl19oI0s54ch+lNoD4EDz5FHcnAqA4mo0+hPhW6+pToHpm85G/ISuvqeeA+s+xdi",
+	"OLDtawKxcJmSyi7vFgD8wCTycL/2A//xAn//BAfPNuO0WSJC40jFmlc2fR1Ceij3wdr05URcqNdOwsGa",
+	"Dl1cdxWF39/tVmKWS+vlMkGiL/RARpAC3udAY725o1dkEGtFl8buelLxwbTWNdKwvzhbNC0fM4/8Kthc",
+	"WIp3PyZayNy8z2zvxiVAWpLhvY5BG0WOoMJiIMFTPOz/KFFvako1BeQKDGk/40bEeEETwcnw5Exrpw+w",
+	"pip6JfUl0srtvuoumZxkri6rBvf6AGULV6VWpYfIMAUmRv/pH/bY6QPWueQawGtJk/LTP9zFh+RI1kVL",
+	"tJLg4HQ6FpdjriFqAP7beXz6nH32+Wf97T03nG+EsecYF4j+VLvbe6aqPGG723cBOWZve88k7GR73yRs",
+	"f3uXLPu7/SuIrAcP1y5qTgRMJKfwpmpiTT3iyJCPOUY4x+nuD8NfceA0aLacjW4g09DAARvx0lCi+otC",
+	"laRM82oyg4NppjQEn7sLVaKfGzqBj8Slxz8BsL7m4tix0M5ZKyw6AGjQeqDfnYTsIuTgTk0WppqEHjsi",
+	"bBG2i7Ai1agGEjb2IYNQbJkRdqyHB5bxjsCwAcQK7kiuETzH+rlA7R8sIh4r5i70JOIPMcI8E4mLBDpT",
+	"GPU/Jy/HgfzqmOFFns+0MBQyyrNMi7ywDtFJC9BpWrhUZM5On79w+GUI4dwuUWJvltwjq+Aebid/14fI",
+	"yt/WRhjt2hgMOE8vQrEWZIiHGHkP9CP29gT3GXRFvVgK7wEb4xaQKZ5w29K6uLqmdatuoe0v1SWbAF5U",
+	"40wmFRuEsSd1ApoQ8KWNiPSyXvr37aDGezGm8V4N0njvA0Ma03la5tYodAGTAkfXjygJkEoyr0jjRxvZ",
+	"e8iMAWF9nuNwiMD+QFPoDAXqIJvRuMxhceo3b8RW0V5fV8txjU2ZuK6daalsz1ycvyf2C1uphftRu2kD",
+	"MKS6FhJG/hvOD9tND3IpBzHv4EA+yVuQrrJMSIusgXR3G/FEAxmxQjTPIVLZ14asB50Kgc6XpfBuQGj9",
+	"Q9TfEu7ukxZmRCpLvV51+b0olT39+i8+3oEf78CPd2B0BxYTfi52zMX5764m5Q1i0JA0fLzGbh+xPya9",
+	"FE+GtDthRMVu+VaCtkU206A1BKp4JrgW+mhmx1sHf/z27behweZ5eFzJ9OhbrkY1R4oqNqlTCeOm26v2",
+	"O5RqgdN7RAj5cV3+oFGoSAS6ALeoiap0c7JY6WN5IbQRbKpFXmQ+W43X0tWAEuP6qs/bKv3qyMX3Y19i",
+	"l9R6wmFx2Va4ipWrJ2VIQkRMFKAW7s2syudQa8X5gS8083VrvFhSBdBVGOwOjECCe3Imotq/z1oqpiT9",
+	"mGnemYEirxUQXMXUcgzRUmWRFSKeVlegrdYXj13Cvl5MvuFBW6IU9O4LE6bqIUWiFJnVShZZlF00Xlws",
+	"3VLtEzAXCRPyTuCfE2F1kfn6oyxHvSbyH+2Wb9/+PwMA",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,

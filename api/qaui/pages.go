@@ -35,7 +35,7 @@ var uiPages = func() map[string]*template.Template {
 		"g4":         func(v float64) string { return strconv.FormatFloat(v, 'g', 4, 64) },
 		"g6":         func(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) },
 		"pct":        func(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) },
-		"when":       func(t time.Time) string { return t.UTC().Format("2006-01-02 15:04 UTC") },
+		"when":       func(t time.Time) string { return t.UTC().Format("2006-01-02 15:04:05 UTC") },
 		"day":        func(t time.Time) string { return t.UTC().Format("2006-01-02") },
 		"statusWord": statusWord,
 		"short":      func(id string) string { return id[:min(8, len(id))] },
@@ -157,6 +157,7 @@ func (s *Pages) Register(e *echo.Echo) {
 	g.GET("/curves/:id", s.uiCurvePage, read)
 	g.GET("/curves/:id/plot.svg", s.uiCurvePlot, read)
 	g.POST("/curves/:id/review", s.uiReview, review, s.requireCSRF)
+	g.POST("/curves/:id/sign", s.uiSign, review, s.requireCSRF)
 	g.GET("/trends", s.uiTrendPage, read)
 	g.GET("/trends/plot.svg", s.uiTrendPlot, read)
 }
@@ -244,6 +245,7 @@ type curveView struct {
 	Done      string
 	Problem   string
 	Reason    string
+	Signing   signingView
 }
 
 type auditRow struct {
@@ -317,6 +319,9 @@ func (s *Pages) curveView(c echo.Context, id string) (*curveView, error) {
 		}
 	}
 	v.Equation = equationText(cv.Report)
+	if v.Signing, err = s.signingViewOf(c, cv.ID); err != nil {
+		return nil, err
+	}
 	tq := url.Values{"instrument": {cv.Instrument}, "analyte": {cv.Analyte}, "parameter": {lab.ParamSlope}}
 	v.TrendLink = template.URL("/ui/trends?" + tq.Encode())
 	if sessionOf(c).CanReview() {

@@ -9,6 +9,8 @@ import (
 	"strconv"
 	"strings"
 	"time"
+
+	"curvekeeper/lab"
 )
 
 // config is every setting of the service, parsed once from flags and
@@ -33,6 +35,11 @@ type config struct {
 	ReadURLs      []string
 	MaxReplicaLag time.Duration // above it a replica gets no reads
 	CheckInterval time.Duration // how often recovery and replica lag are checked
+	// LabZone is the lab's time zone, shown beside UTC on signatures and
+	// printed records; MaxFailedSignIns wrong passwords in a row lock a
+	// person's account.
+	LabZone          *time.Location
+	MaxFailedSignIns int
 	// ClockSkew is how far ahead of its receipt a claimed measurement time
 	// may lie (lab.DefaultFutureSkew unless set).
 	ClockSkew time.Duration
@@ -77,6 +84,8 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	fs.StringVar(&cfg.PprofListen, "pprof-listen", env("CURVEKEEPER_PPROF_LISTEN", ""), "loopback host:port for /debug/pprof; empty is off (CURVEKEEPER_PPROF_LISTEN)")
 	readURLs := fs.String("database-read-url", env("DATABASE_READ_URL", ""), "comma-separated PostgreSQL URLs of read replicas (hot standbys of the primary) for lag-tolerant reads (DATABASE_READ_URL)")
 	maxLag := fs.String("replica-max-lag", env("CURVEKEEPER_REPLICA_MAX_LAG", "10s"), "a replica lagging more gets no reads (CURVEKEEPER_REPLICA_MAX_LAG)")
+	labZone := fs.String("lab-time-zone", env("CURVEKEEPER_LAB_TIME_ZONE", "UTC"), "the lab's IANA time zone, shown beside UTC on signatures and printed records (CURVEKEEPER_LAB_TIME_ZONE)")
+	maxFailed := fs.Int("max-failed-sign-ins", 0, "wrong passwords in a row that lock a person's account; 0 means CURVEKEEPER_MAX_FAILED_SIGN_INS or 5")
 	checkEvery := fs.String("replica-check-interval", env("CURVEKEEPER_REPLICA_CHECK_INTERVAL", "1s"), "how often the service checks whether its database is a standby and how far replicas lag (CURVEKEEPER_REPLICA_CHECK_INTERVAL)")
 	clockSkew := fs.String("clock-skew", env("CURVEKEEPER_CLOCK_SKEW", "24h"), "how far ahead of its receipt a run's, sample's or verification's time may lie (CURVEKEEPER_CLOCK_SKEW)")
 	cfg.BootstrapToken = getenv("CURVEKEEPER_BOOTSTRAP_TOKEN")
@@ -147,6 +156,24 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	case "debug", "info", "warn", "error":
 	default:
 		return cfg, nil, &usageError{fmt.Sprintf("--log-level %q: want debug, info, warn or error", cfg.LogLevel)}
+	}
+	zone, err := time.LoadLocation(*labZone)
+	if err != nil || *labZone == "" || *labZone == "Local" {
+		return cfg, nil, &usageError{fmt.Sprintf("--lab-time-zone %q: want an IANA zone name such as Europe/Vienna or UTC", *labZone)}
+	}
+	cfg.LabZone = zone
+	cfg.MaxFailedSignIns = *maxFailed
+	if cfg.MaxFailedSignIns == 0 {
+		if v := getenv("CURVEKEEPER_MAX_FAILED_SIGN_INS"); v != "" {
+			if cfg.MaxFailedSignIns, err = strconv.Atoi(v); err != nil {
+				cfg.MaxFailedSignIns = -1
+			}
+		} else {
+			cfg.MaxFailedSignIns = lab.DefaultMaxFailedSignIns
+		}
+	}
+	if cfg.MaxFailedSignIns < 1 || cfg.MaxFailedSignIns > 100 {
+		return cfg, nil, &usageError{"--max-failed-sign-ins: want a whole number from 1 to 100"}
 	}
 	return cfg, positional, nil
 }

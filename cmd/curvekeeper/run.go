@@ -167,8 +167,10 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 	if rateLimit == 0 {
 		rateLimit = -1 // off
 	}
+	svc := lab.NewService(db, lab.WithFutureSkew(cfg.ClockSkew))
+	svc.People = lab.PeopleConfig{MaxFailedSignIns: cfg.MaxFailedSignIns, Zone: cfg.LabZone}
 	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout,
-		RateLimit: rateLimit, RateBurst: cfg.RateBurst}, lab.NewService(db, lab.WithFutureSkew(cfg.ClockSkew)), log)
+		RateLimit: rateLimit, RateBurst: cfg.RateBurst}, svc, log)
 	if err != nil {
 		return err
 	}
