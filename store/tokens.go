@@ -64,6 +64,15 @@ func (db *DB) CreateOwnedToken(ctx context.Context, name string, scopes []string
 // its secret. The secret is returned only here; the database keeps its
 // SHA-256. The creation is audited under actor, with the binding.
 func (db *DB) IssueToken(ctx context.Context, in lab.TokenInput, actor string) (id, secret string, err error) {
+	if in.Owner == "" {
+		// No owner chosen: an instrument's token belongs to the instrument
+		// of its name, any other to whoever issues it (lab.DefaultOwner's
+		// rule for an issuer that is not a person).
+		in.Owner = actor
+		if len(in.Scopes) == 1 && in.Scopes[0] == lab.ScopeRunsWrite {
+			in.Owner = lab.OwnerInstrument + in.Name
+		}
+	}
 	if id, err = newID(); err != nil {
 		return "", "", err
 	}

@@ -210,7 +210,7 @@ func demoTokens(ctx context.Context, db *store.DB) (map[string]string, []string,
 	for _, r := range demoRoles {
 		in := lab.TokenInput{Name: r.name, Scopes: []string{r.scope}}
 		if r.scope == lab.ScopeRunsWrite {
-			in.Instruments = []string{demoICPMS, demoUVVis} // instrument binding
+			in.Instruments = []string{demoICPMS, demoUVVis, demoPlateReader} // instrument binding
 		}
 		in, err := lab.CheckTokenInput(in)
 		if err != nil {
