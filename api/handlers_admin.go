@@ -4,7 +4,6 @@ import (
 	"context"
 	"net/http"
 	"slices"
-	"time"
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
@@ -221,7 +220,7 @@ func (s *Server) CreateToken(ctx context.Context, req oapi.CreateTokenRequestObj
 		return nil, err
 	}
 	out := oapi.CreateToken201JSONResponse{ID: uuidOf(id), Name: string(req.Body.Name), Token: secret,
-		CreatedAt: oapi.NewTimestamp(time.Now().UTC())}
+		CreatedAt: oapi.NewTimestamp(s.lab.Now())}
 	if in.Instruments != nil {
 		out.Instruments = &in.Instruments
 	}

@@ -162,7 +162,7 @@ func (s *Server) rateLimitMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 		if isMachineReader(p.Scopes) {
 			scale = ReaderRateFactor
 		}
-		allowed, wait := s.limiter.allowScaled(p.TokenID, scale, time.Now())
+		allowed, wait := s.limiter.allowScaled(p.TokenID, scale, s.lab.Now())
 		if allowed {
 			return next(c)
 		}
@@ -209,7 +209,7 @@ func (s *Server) authFailureWait(c echo.Context) int {
 	if s.authFailures == nil {
 		return 0
 	}
-	blocked, wait := s.authFailures.blocked(c.RealIP(), time.Now())
+	blocked, wait := s.authFailures.blocked(c.RealIP(), s.lab.Now())
 	if !blocked {
 		return 0
 	}
@@ -226,6 +226,6 @@ func tooManyFailures(secs int) string {
 // authFailed counts one failed authentication of the client's address.
 func (s *Server) authFailed(c echo.Context) {
 	if s.authFailures != nil {
-		s.authFailures.allow(c.RealIP(), time.Now())
+		s.authFailures.allow(c.RealIP(), s.lab.Now())
 	}
 }
