@@ -392,11 +392,11 @@ func (s *Pages) uiReview(c echo.Context) error {
 		if err == nil {
 			return c.Redirect(http.StatusSeeOther, "/ui/curves/"+url.PathEscape(id)+"?reviewed="+decision)
 		}
-		var se *lab.Error
-		if !errors.As(err, &se) || se.Kind == lab.KindInternal || se.Kind == lab.KindUnavailable || se.Kind == lab.KindNotFound {
+		msg, ok := formProblem(err)
+		if !ok {
 			return s.Fail(c, err)
 		}
-		problem = se.Message
+		problem = msg
 	}
 	v, err := s.curveView(c, id)
 	if err != nil {
@@ -570,4 +570,15 @@ func curveEquationText(r *calib.Report) string {
 		sb.WriteString("; θ = " + strconv.FormatFloat(r.Curve.Theta, 'g', 4, 64))
 	}
 	return sb.String()
+}
+
+// formProblem is the message a form shows again for err, the caller's own
+// mistake (a rule, a conflict, a refused password); false for an error the
+// page cannot help with (internal, unavailable, not found), which Fail answers.
+func formProblem(err error) (string, bool) {
+	var se *lab.Error
+	if !errors.As(err, &se) || se.Kind == lab.KindInternal || se.Kind == lab.KindUnavailable || se.Kind == lab.KindNotFound {
+		return "", false
+	}
+	return se.Message, true
 }

@@ -1,7 +1,6 @@
 package qaui
 
 import (
-	"errors"
 	"net/http"
 	"net/url"
 	"strings"
@@ -65,11 +64,11 @@ func (s *Pages) uiSign(c echo.Context) error {
 		if err == nil {
 			return c.Redirect(http.StatusSeeOther, "/ui/curves/"+url.PathEscape(id)+"?signed=1#signatures-h")
 		}
-		var se *lab.Error
-		if !errors.As(err, &se) || se.Kind == lab.KindInternal || se.Kind == lab.KindUnavailable || se.Kind == lab.KindNotFound {
+		msg, ok := formProblem(err)
+		if !ok {
 			return s.Fail(c, err)
 		}
-		problem = se.Message
+		problem = msg
 	}
 	v, err := s.curveView(c, id)
 	if err != nil {
