@@ -80,7 +80,7 @@ func newEnv(t testing.TB) *env {
 // bootstrap admin token, as the service does with CURVEKEEPER_BOOTSTRAP_TOKEN.
 func newEnvConfig(t testing.TB, cfg api.Config) *env {
 	t.Helper()
-	return newEnvDB(t, cfg, dbtest.NewDB(t))
+	return newEnvDB(t, cfg, dbtest.NewAppDB(t))
 }
 
 func newEnvDB(t testing.TB, cfg api.Config, db *store.DB, opts ...lab.Option) *env {

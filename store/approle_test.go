@@ -6,6 +6,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/jackc/pgx/v5"
 	"github.com/jackc/pgx/v5/pgconn"
 
 	"curvekeeper/lab"
@@ -102,5 +103,75 @@ func TestOpenKeepsOwner(t *testing.T) {
 	db := newDB(t)
 	if got := currentUser(t, db); got == store.AppRole {
 		t.Fatalf("current_user = %q, want the login user", got)
+	}
+}
+
+// TestLoginRoleCannotRegainOwner: the service logs in as store.LoginRole,
+// which is neither superuser nor a member of the tables' owner. What an
+// injected statement could try to get the owner's rights back (RESET ROLE,
+// SET ROLE or SET SESSION AUTHORIZATION to the owner or a superuser) is
+// refused, and after RESET ROLE the connection still may not touch the
+// audit trail or the schema. Before the login role, the service logged in
+// as the owner and RESET ROLE gave every right back.
+func TestLoginRoleCannotRegainOwner(t *testing.T) {
+	t.Parallel()
+	db := dbtest.NewAppDB(t)
+	ctx := context.Background()
+	if got := currentUser(t, db); got != store.AppRole {
+		t.Fatalf("current_user = %q, want %q", got, store.AppRole)
+	}
+	p, err := db.LoginPrivilege(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if p.User != store.LoginRole || p.Risky() {
+		t.Fatalf("login privilege = %+v, want %s, neither superuser nor owner", p, store.LoginRole)
+	}
+	var owner string
+	if err := db.Pool.QueryRow(ctx, `SELECT tableowner FROM pg_tables WHERE tablename = 'audit'`).Scan(&owner); err != nil {
+		t.Fatal(err)
+	}
+
+	// The service's whole write path works as the login role.
+	m := mustMethod(t, db, "nitrate-ic")
+	in, curves := runInput(m, baseTime)
+	if _, err := db.CreateRun(ctx, in, curves); err != nil {
+		t.Fatalf("CreateRun as %s: %v", store.LoginRole, err)
+	}
+	before := count(t, db, "audit")
+
+	conn, err := db.Pool.Acquire(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Release()
+	defer conn.Conn().Close(ctx) // its role was reset: do not return it to the pool
+	if _, err := conn.Exec(ctx, `RESET ROLE`); err != nil {
+		t.Fatalf("RESET ROLE: %v", err)
+	}
+	var cur string
+	if err := conn.QueryRow(ctx, `SELECT current_user`).Scan(&cur); err != nil || cur != store.LoginRole {
+		t.Fatalf("after RESET ROLE current_user = %q (%v), want %s", cur, err, store.LoginRole)
+	}
+	for _, sql := range []string{
+		`SET ROLE ` + pgx.Identifier{owner}.Sanitize(),
+		`SET ROLE postgres`,
+		`SET SESSION AUTHORIZATION ` + pgx.Identifier{owner}.Sanitize(),
+		`UPDATE audit SET actor = 'someone else'`,
+		`DELETE FROM audit`,
+		`TRUNCATE audit`,
+		`ALTER TABLE audit DISABLE TRIGGER ALL`,
+		`DROP TABLE audit`,
+		`UPDATE schema_migrations SET version = 1`,
+		`CREATE TABLE scratch (v int)`,
+	} {
+		_, err := conn.Exec(ctx, sql)
+		var pgErr *pgconn.PgError
+		if !errors.As(err, &pgErr) || (pgErr.Code != "42501" && pgErr.Code != "42704") {
+			t.Errorf("%s: error = %v, want SQLSTATE 42501 (insufficient_privilege) or 42704 (no such role)", sql, err)
+		}
+	}
+	if got := count(t, db, "audit"); got != before {
+		t.Errorf("audit = %d rows, want %d unchanged", got, before)
 	}
 }

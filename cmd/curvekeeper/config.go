@@ -16,8 +16,12 @@ import (
 // config is every setting of the service, parsed once from flags and
 // CURVEKEEPER_* environment variables (flags win) and passed down as a value.
 type config struct {
-	Listen          string
-	DatabaseURL     string
+	Listen      string
+	DatabaseURL string
+	// MigrateURL is the tables' owner (DATABASE_MIGRATE_URL): migrations
+	// run through it and the service logs in through DatabaseURL, a role
+	// that is neither superuser nor owner. Empty: DatabaseURL does both.
+	MigrateURL      string
 	DataDir         string
 	BodyLimit       int64
 	RequestTimeout  time.Duration
@@ -71,6 +75,7 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	fs.SetOutput(stderr)
 	fs.StringVar(&cfg.Listen, "listen", env("CURVEKEEPER_LISTEN", "127.0.0.1:8080"), "address to listen on (CURVEKEEPER_LISTEN)")
 	fs.StringVar(&cfg.DatabaseURL, "database-url", env("DATABASE_URL", ""), "PostgreSQL URL; empty starts a private cluster in --data-dir (DATABASE_URL)")
+	fs.StringVar(&cfg.MigrateURL, "database-migrate-url", env("DATABASE_MIGRATE_URL", ""), "PostgreSQL URL of the tables' owner, for migrations; the service then logs in through --database-url, a role without superuser or ownership (DATABASE_MIGRATE_URL)")
 	fs.StringVar(&cfg.DataDir, "data-dir", env("CURVEKEEPER_DATA_DIR", "./curvekeeper-data"), "folder of the private PostgreSQL cluster (CURVEKEEPER_DATA_DIR)")
 	bodyLimit := fs.String("body-limit", env("CURVEKEEPER_BODY_LIMIT", "8388608"), "largest request body in bytes (CURVEKEEPER_BODY_LIMIT)")
 	reqTimeout := fs.String("request-timeout", env("CURVEKEEPER_REQUEST_TIMEOUT", "15s"), "deadline of each request (CURVEKEEPER_REQUEST_TIMEOUT)")
@@ -145,6 +150,9 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	}
 	if len(cfg.ReadURLs) > 0 && cfg.DatabaseURL == "" {
 		return cfg, nil, &usageError{"--database-read-url needs --database-url: read replicas are standbys of a primary server, not of the private cluster"}
+	}
+	if cfg.MigrateURL != "" && cfg.DatabaseURL == "" {
+		return cfg, nil, &usageError{"--database-migrate-url needs --database-url: the private cluster makes its own login role"}
 	}
 	if len(cfg.ReadURLs) > 64 {
 		return cfg, nil, &usageError{"--database-read-url: at most 64 replicas"}

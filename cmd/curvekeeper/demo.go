@@ -35,14 +35,21 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 		return err
 	}
 	defer dbase.close(log)
-	db, err := store.Open(ctx, dbase.url)
+	// As the service does: the owner migrates, the demo's requests run as
+	// the service's login.
+	if err := store.MigrateUp(ctx, dbase.ownerURL, cfg.MigrateLockWait); err != nil {
+		return err
+	}
+	if dbase.separateOwner() {
+		if err := dbase.grantLogin(ctx); err != nil {
+			return err
+		}
+	}
+	db, err := store.OpenApp(ctx, dbase.url)
 	if err != nil {
 		return fmt.Errorf("cannot reach the database (%s): %s", redactURL(dbase.url), oneLine(err))
 	}
 	defer db.Close()
-	if err := store.MigrateUp(ctx, dbase.url, cfg.MigrateLockWait); err != nil {
-		return err
-	}
 	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout}, lab.NewService(db, lab.WithClock(now)),
 		slog.New(slog.NewJSONHandler(io.Discard, nil)))
 	if err != nil {

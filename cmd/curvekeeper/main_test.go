@@ -16,6 +16,9 @@ import (
 	"testing"
 	"time"
 
+	"github.com/jackc/pgx/v5"
+
+	"curvekeeper/store"
 	"curvekeeper/store/dbtest"
 )
 
@@ -150,6 +153,14 @@ func TestServePrivateDatabase(t *testing.T) {
 	if !strings.Contains(s.stderr.String(), "created PostgreSQL cluster") {
 		t.Errorf("first start did not say it created the cluster; stderr:\n%s", s.stderr.String())
 	}
+	// The private cluster's superuser migrates; the service logs in as the
+	// login role, neither superuser nor owner.
+	if !strings.Contains(s.stderr.String(), `"msg":"database login","login":"curvekeeper_login","superuser":false,"owner":false`) {
+		t.Errorf("the service did not log in as curvekeeper_login; stderr:\n%s", s.stderr.String())
+	}
+	if strings.Contains(s.stderr.String(), "RESET ROLE would regain") {
+		t.Errorf("the private cluster's login was judged privileged; stderr:\n%s", s.stderr.String())
+	}
 	pid := postmasterPID(t, dataDir)
 	s.shutdown(t)
 	if processAlive(pid) {
@@ -175,6 +186,56 @@ func TestServeDatabaseURL(t *testing.T) {
 	}
 	if got := getStatus(t, "http://"+s.addr+"/healthz"); got != http.StatusOK {
 		t.Fatalf("/healthz = %d, want 200", got)
+	}
+	// The test server's user is a superuser: the service says what that risks.
+	if !strings.Contains(s.stderr.String(), "RESET ROLE would regain those rights") {
+		t.Errorf("no warning for a superuser login; stderr:\n%s", s.stderr.String())
+	}
+}
+
+// TestServeSeparateOwner: with DATABASE_MIGRATE_URL the owner migrates and
+// grants curvekeeper_app to DATABASE_URL's login role, which the service
+// then works as, writes included, without any warning.
+func TestServeSeparateOwner(t *testing.T) {
+	ownerURL := dbtest.NewURL(t)
+	ctx := context.Background()
+	role := "ck_service_" + strconv.Itoa(os.Getpid()) // roles are server-wide: one per test process
+	conn, err := pgx.Connect(ctx, ownerURL)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := conn.Exec(ctx, `CREATE ROLE `+pgx.Identifier{role}.Sanitize()+` LOGIN`); err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() {
+		if _, err := conn.Exec(ctx, `DROP ROLE IF EXISTS `+pgx.Identifier{role}.Sanitize()); err != nil {
+			t.Logf("drop role %s: %v", role, err)
+		}
+		conn.Close(ctx)
+	})
+	loginURL, err := store.WithUser(ownerURL, role)
+	if err != nil {
+		t.Fatal(err)
+	}
+	const bootstrap = "ck_bootstrap-separate-owner-0123456789abcdef"
+	s := startService(t, map[string]string{"CURVEKEEPER_BOOTSTRAP_TOKEN": bootstrap},
+		"--database-url", loginURL, "--database-migrate-url", ownerURL)
+	if got := getStatus(t, "http://"+s.addr+"/readyz"); got != http.StatusOK {
+		t.Fatalf("/readyz = %d, want 200\n%s", got, s.stderr.String())
+	}
+	want := `"msg":"database login","login":"` + role + `","superuser":false,"owner":false`
+	if !strings.Contains(s.stderr.String(), want) {
+		t.Errorf("stderr lacks %s:\n%s", want, s.stderr.String())
+	}
+	req, _ := http.NewRequest(http.MethodGet, "http://"+s.addr+"/v1/methods", nil)
+	req.Header.Set("Authorization", "Bearer "+bootstrap)
+	resp, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	resp.Body.Close()
+	if resp.StatusCode != http.StatusOK {
+		t.Errorf("GET /v1/methods with the bootstrap token stored through the login role = %d, want 200", resp.StatusCode)
 	}
 }
 

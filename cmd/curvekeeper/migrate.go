@@ -29,7 +29,7 @@ func migrateCmd(ctx context.Context, args []string, getenv func(string) string, 
 	defer dbase.close(log)
 	switch verb {
 	case "up":
-		if err := store.MigrateUp(ctx, dbase.url, cfg.MigrateLockWait); err != nil {
+		if err := store.MigrateUp(ctx, dbase.ownerURL, cfg.MigrateLockWait); err != nil {
 			return err
 		}
 	case "down":
@@ -39,10 +39,10 @@ func migrateCmd(ctx context.Context, args []string, getenv func(string) string, 
 				return &usageError{fmt.Sprintf("migrate down %q: want a positive number of steps", rest[0])}
 			}
 		}
-		if v, _, err := store.SchemaVersion(ctx, dbase.url); err == nil && v == 0 {
+		if v, _, err := store.SchemaVersion(ctx, dbase.ownerURL); err == nil && v == 0 {
 			return fmt.Errorf("the schema is at version 0: there is nothing to migrate down")
 		}
-		if err := store.MigrateDown(ctx, dbase.url, steps); err != nil {
+		if err := store.MigrateDown(ctx, dbase.ownerURL, steps); err != nil {
 			return err
 		}
 	case "force":
@@ -53,14 +53,14 @@ func migrateCmd(ctx context.Context, args []string, getenv func(string) string, 
 		if err != nil || v < 0 {
 			return &usageError{fmt.Sprintf("migrate force %q: want a schema version (a whole number)", rest[0])}
 		}
-		if err := store.MigrateForce(ctx, dbase.url, v); err != nil {
+		if err := store.MigrateForce(ctx, dbase.ownerURL, v); err != nil {
 			return err
 		}
 	case "version":
 	default:
 		return &usageError{fmt.Sprintf("migrate %q: want up, down [N], force V or version", verb)}
 	}
-	v, dirty, err := store.SchemaVersion(ctx, dbase.url)
+	v, dirty, err := store.SchemaVersion(ctx, dbase.ownerURL)
 	if err != nil {
 		return err
 	}

@@ -68,20 +68,96 @@ func newLogger(cfg config, w io.Writer) *slog.Logger {
 
 // database is an open database and whatever must be stopped after it.
 type database struct {
-	url     string
-	cluster *localpg.Cluster // nil when DATABASE_URL names a server
+	url      string           // the service's login
+	ownerURL string           // migrations and the demo: the tables' owner; url when there is no separate owner
+	cluster  *localpg.Cluster // nil when DATABASE_URL names a server
 }
 
 // openDatabase returns DATABASE_URL's server, or starts the private cluster.
+// On the private cluster the service logs in as store.LoginRole and the
+// cluster's superuser migrates; with DATABASE_URL, DATABASE_MIGRATE_URL (when
+// set) migrates.
 func openDatabase(ctx context.Context, cfg config, log *slog.Logger) (*database, error) {
 	if cfg.DatabaseURL != "" {
-		return &database{url: cfg.DatabaseURL}, nil
+		owner := cfg.MigrateURL
+		if owner == "" {
+			owner = cfg.DatabaseURL
+		}
+		return &database{url: cfg.DatabaseURL, ownerURL: owner}, nil
 	}
 	cl, err := localpg.Start(ctx, localpg.Options{DataDir: cfg.DataDir, Logger: log})
 	if err != nil {
 		return nil, err
 	}
-	return &database{url: cl.URL(), cluster: cl}, nil
+	login, err := store.WithUser(cl.URL(), store.LoginRole)
+	if err != nil {
+		_ = cl.Stop(context.WithoutCancel(ctx))
+		return nil, err
+	}
+	return &database{url: login, ownerURL: cl.URL(), cluster: cl}, nil
+}
+
+// separateOwner reports whether migrations run as another role than the
+// service's login.
+func (d *database) separateOwner() bool { return d.ownerURL != d.url }
+
+// grantLogin lets the service's login work as store.AppRole: on the private
+// cluster it creates store.LoginRole; with DATABASE_MIGRATE_URL it grants
+// AppRole to DATABASE_URL's user.
+func (d *database) grantLogin(ctx context.Context) error {
+	if d.cluster != nil {
+		return store.EnsureLoginRole(ctx, d.ownerURL)
+	}
+	user, err := store.UserOf(d.url)
+	if err != nil {
+		return err
+	}
+	return store.GrantApp(ctx, d.ownerURL, user)
+}
+
+// openServing migrates through the owner's URL when it is separate, then
+// opens the service's pool on its login (store.OpenApp), migrating through
+// it otherwise. It warns when the login is a superuser or may become the
+// tables' owner: an injected RESET ROLE would then regain those rights.
+func openServing(ctx context.Context, cfg config, dbase *database, log *slog.Logger) (*store.DB, error) {
+	connectCtx, cancel := context.WithTimeout(ctx, 10*time.Second)
+	defer cancel()
+	if dbase.separateOwner() {
+		owner, err := store.Open(connectCtx, dbase.ownerURL)
+		if err != nil {
+			return nil, fmt.Errorf("cannot reach the database as the tables' owner (%s): %s", redactURL(dbase.ownerURL), oneLine(errors.Unwrap(err)))
+		}
+		err = prepareSchema(ctx, cfg, owner, dbase.ownerURL, log)
+		if err == nil && !owner.ReadOnly() {
+			err = dbase.grantLogin(ctx)
+		}
+		owner.Close()
+		if err != nil {
+			return nil, err
+		}
+	}
+	db, err := store.OpenApp(connectCtx, dbase.url)
+	if err != nil {
+		return nil, fmt.Errorf("cannot reach the database (%s): %s", redactURL(dbase.url), oneLine(errors.Unwrap(err)))
+	}
+	if !dbase.separateOwner() {
+		if err := prepareSchema(ctx, cfg, db, dbase.url, log); err != nil {
+			db.Close()
+			return nil, err
+		}
+	}
+	p, err := db.LoginPrivilege(ctx)
+	switch {
+	case err != nil:
+		log.Warn("could not read the login's privileges", "err", err)
+	case p.Risky():
+		log.Warn("the service logs in as a superuser or the tables' owner: an injected RESET ROLE would regain those rights; "+
+			"set DATABASE_MIGRATE_URL to the owner and DATABASE_URL to a login role without them (README, Security)",
+			"login", p.User, "superuser", p.Superuser, "owner", p.Owner)
+	default:
+		log.Info("database login", "login", p.User, "superuser", false, "owner", false)
+	}
+	return db, nil
 }
 
 func (d *database) close(log *slog.Logger) {
@@ -124,16 +200,13 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 	}
 	defer dbase.close(log)
 
-	connectCtx, cancel := context.WithTimeout(ctx, 10*time.Second)
-	defer cancel()
-	db, err := store.OpenApp(connectCtx, dbase.url)
+	db, err := openServing(ctx, cfg, dbase, log)
 	if err != nil {
-		return fmt.Errorf("cannot reach the database (%s): %s", redactURL(dbase.url), oneLine(errors.Unwrap(err)))
-	}
-	defer db.Close()
-	if err := prepareSchema(ctx, cfg, db, dbase.url, log); err != nil {
 		return err
 	}
+	defer db.Close()
+	connectCtx, cancel := context.WithTimeout(ctx, 10*time.Second)
+	defer cancel()
 	if len(cfg.ReadURLs) > 0 {
 		if err := db.AttachReplicas(ctx, cfg.ReadURLs, store.ReplicaOptions{MaxLag: cfg.MaxReplicaLag}); err != nil {
 			return err

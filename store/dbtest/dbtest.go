@@ -132,6 +132,11 @@ func (s *server) prepare(ctx context.Context) error {
 		return err
 	}
 	s.template = name
+	// The service's login role (roles belong to the server, so once); it
+	// needs AppRole, which the template's migrations made.
+	if err := store.EnsureLoginRole(ctx, s.url); err != nil {
+		return fmt.Errorf("dbtest: %w", err)
+	}
 	return nil
 }
 
@@ -343,6 +348,26 @@ func NewDB(t testing.TB) *store.DB {
 		t.Fatalf("dbtest: open test database: %v", err)
 	}
 	t.Cleanup(db.Close) // runs before the drop registered by NewURL
+	return db
+}
+
+// NewAppDB returns a store on a fresh migrated database connected as the
+// service connects in production: as store.LoginRole (neither superuser nor
+// owner of any table) through store.OpenApp. The server must admit that
+// role without a password (trust), as the private cluster does.
+func NewAppDB(t testing.TB) *store.DB {
+	t.Helper()
+	u, err := store.WithUser(NewURL(t), store.LoginRole)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
+	defer cancel()
+	db, err := store.OpenApp(ctx, u)
+	if err != nil {
+		t.Fatalf("dbtest: open test database as %s: %v", store.LoginRole, err)
+	}
+	t.Cleanup(db.Close)
 	return db
 }
 
