@@ -94,3 +94,40 @@ func TestSignaturesThroughTheAPI(t *testing.T) {
 		t.Errorf("a disabled person's token: %d, want 401", r.status)
 	}
 }
+
+// TestFourEyesFollowsThePerson: the four-eyes rule is about people, not
+// tokens. A run posted through one of ana's tokens is not reviewed through
+// another token of hers, while a token of another person may review it.
+// Before, the rule compared the tokens, so ana's second token approved her
+// own run.
+func TestFourEyesFollowsThePerson(t *testing.T) {
+	t.Parallel()
+	e := newEnv(t)
+	e.person(t, "ana", "Ana Analyst", "analyst", "reviewer")
+	e.person(t, "rui", "Rui Reviewer", "reviewer")
+	issue := func(name, owner string, scopes []string, instruments []string) string {
+		body := map[string]any{"name": name, "scopes": scopes, "owner": owner}
+		if instruments != nil {
+			body["instruments"] = instruments
+		}
+		return decode[oapi.TokenCreated](t, e.postJSON(t, e.admin, "/v1/tokens", body), http.StatusCreated).Token
+	}
+	uploads := issue("ana-uploads", "person:ana", []string{"runs:write"}, []string{"photometer-7"})
+	anaReview := issue("ana-review", "person:ana", []string{"curves:review"}, nil)
+	ruiReview := issue("rui-review", "person:rui", []string{"curves:review"}, nil)
+	e.method(t, "nitrate-uv", "nitrate")
+	review := func(tok, id string) reply {
+		return e.postJSON(t, tok, "/v1/curves/"+id+"/review", map[string]any{"decision": "approve", "reason": "checked against the bench log"})
+	}
+	first := e.run(t, uploads, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 5))).Curves[0].ID.String()
+	p := wantProblem(t, review(anaReview, first), http.StatusUnprocessableEntity, "/decision")
+	if !strings.Contains(p.Detail, "four_eyes") || !strings.Contains(p.Detail, "person:ana") {
+		t.Errorf("refusal %q does not name the rule and the person", p.Detail)
+	}
+	if c := decode[oapi.Curve](t, e.get(t, e.admin, "/v1/curves/"+first), http.StatusOK); c.Status != "pending_review" {
+		t.Errorf("after the refusal the curve is %s, want pending_review", c.Status)
+	}
+	if r := review(ruiReview, first); r.status != http.StatusOK {
+		t.Errorf("another person's token: %s", r)
+	}
+}

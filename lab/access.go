@@ -160,21 +160,28 @@ func checkIdentifier(field, s string) error {
 }
 
 // ReviewFacts is what the review rules need of a curve, read with its row
-// locked.
+// locked. An actor is what the audit trail names ("token:<name>:<id>" or
+// "person:<login>"); its party is who stands behind it: the owner of the
+// token ("person:<login>" or "instrument:<name>"), or the person.
 type ReviewFacts struct {
 	CurveID         string
 	RunPostedBy     string // the actor that posted the curve's run
 	RevisionBy      string // the actor that made this revision by exclusion; "" for a run's own fit
 	AllowSelfReview bool   // the method's explicit choice (QCPolicy.AllowSelfReview)
 	SupersededBy    string // the newer revision's id; "" while the curve is current
+
+	RunPostedByParty string // RunPostedBy's party; "" when unknown
+	RevisionByParty  string // RevisionBy's party; "" when unknown or no revision
+	ReviewerParty    string // the reviewing actor's party; "" when unknown
 }
 
 // CheckReview applies the review rules to a review by actor:
 //   - a superseded curve never comes into force, so it is not reviewed
 //     (KindConflict, naming the newer revision);
-//   - four_eyes: the principal that posted the run, or made the revision,
-//     does not review it (KindInvalid naming the rule), unless the method
-//     allows self-review.
+//   - four_eyes: the party (person or instrument) that posted the run, or
+//     made the revision, does not review it through any of its tokens or its
+//     own signature (KindInvalid naming the rule), unless the method allows
+//     self-review.
 func CheckReview(f ReviewFacts, actor string) error {
 	if f.SupersededBy != "" {
 		return Errorf(KindConflict, "curve %s was superseded by its revision %s; review the revision instead", f.CurveID, f.SupersededBy)
@@ -182,13 +189,25 @@ func CheckReview(f ReviewFacts, actor string) error {
 	if f.AllowSelfReview {
 		return nil
 	}
-	switch actor {
-	case f.RunPostedBy:
-		return FieldError("/decision", "%s: the principal that posted the run of curve %s may not review it (separation of duties; a method may allow it with allow_self_review)", RuleSelfReview, f.CurveID)
-	case f.RevisionBy:
-		return FieldError("/decision", "%s: the principal that made revision %s by excluding standards may not review it (separation of duties; a method may allow it with allow_self_review)", RuleSelfReview, f.CurveID)
+	same := func(by, byParty string) bool {
+		return actor == by || (f.ReviewerParty != "" && f.ReviewerParty == byParty)
+	}
+	switch {
+	case same(f.RunPostedBy, f.RunPostedByParty):
+		return FieldError("/decision", "%s: %s posted the run of curve %s and may not review it, through any token or signature (separation of duties; a method may allow it with allow_self_review)",
+			RuleSelfReview, partyOr(f.RunPostedByParty, f.RunPostedBy), f.CurveID)
+	case f.RevisionBy != "" && same(f.RevisionBy, f.RevisionByParty):
+		return FieldError("/decision", "%s: %s made revision %s by excluding standards and may not review it, through any token or signature (separation of duties; a method may allow it with allow_self_review)",
+			RuleSelfReview, partyOr(f.RevisionByParty, f.RevisionBy), f.CurveID)
 	}
 	return nil
+}
+
+func partyOr(party, actor string) string {
+	if party != "" {
+		return party
+	}
+	return actor
 }
 
 // isBidiControl reports the invisible bidirectional controls that change

@@ -57,6 +57,19 @@ func TestCheckReview(t *testing.T) {
 			t.Errorf("%s: %v", actor, err)
 		}
 	}
+	// One person behind two tokens, or behind a token and a signature, is
+	// one party: the second token or the signature is refused too.
+	f.RunPostedByParty, f.RevisionByParty = "person:alba", "person:quinn"
+	for _, reviewer := range []string{"person:alba", "person:quinn"} {
+		f.ReviewerParty = reviewer
+		if KindOf(CheckReview(f, "token:other:9")) != KindInvalid {
+			t.Errorf("%s reviews through another token", reviewer)
+		}
+	}
+	f.ReviewerParty = "person:remy"
+	if err := CheckReview(f, "person:remy"); err != nil {
+		t.Errorf("a third person: %v", err)
+	}
 	f.AllowSelfReview = true
 	if err := CheckReview(f, "token:a:1"); err != nil {
 		t.Errorf("self-review allowed by the method: %v", err)

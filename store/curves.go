@@ -260,21 +260,36 @@ func curveQuery(f lab.CurveFilter) (sql string, args []any, limit int, err error
 	return sql, args, limit, nil
 }
 
+// sqlPartyOf is the party behind the actor expression (lab.ReviewFacts): a
+// token's owner when it is a person or an instrument (the token is found by
+// the id after the actor's last colon), else the actor itself. A token
+// issued without an owner by a token that has none belongs to its issuing
+// token (lab.DefaultOwner), which names no one: such tokens stay parties of
+// their own.
+func sqlPartyOf(actor string) string {
+	return `CASE WHEN ` + actor + ` LIKE 'token:%' THEN coalesce(
+	(SELECT t.owner FROM tokens t WHERE t.id::text = substring(` + actor + ` from '[^:]+$')
+	   AND (t.owner LIKE 'person:%' OR t.owner LIKE 'instrument:%')), ` + actor + `)
+	ELSE ` + actor + ` END`
+}
+
 // loadReviewFacts reads what lab.CheckReview needs of curve id, whose row
 // lock the caller holds: who posted its run, who made it by exclusion, the
-// method's self-review choice, and the revision superseding it.
-func loadReviewFacts(ctx context.Context, tx pgx.Tx, id string) (*lab.ReviewFacts, error) {
+// parties behind them and behind reviewer, the method's self-review choice,
+// and the revision superseding it.
+func loadReviewFacts(ctx context.Context, tx pgx.Tx, id, reviewer string) (*lab.ReviewFacts, error) {
 	f := &lab.ReviewFacts{CurveID: id}
-	var revisionBy, superseded *string
+	var revisionBy, superseded, postedParty, revisionParty, reviewerParty *string
 	var qc []byte
 	err := tx.QueryRow(ctx, `
 SELECT r.received_by, e.actor, m.qc,
-       (SELECT n.curve_id::text FROM exclusions n WHERE n.revision_of = c.id)
+       (SELECT n.curve_id::text FROM exclusions n WHERE n.revision_of = c.id),
+       `+sqlPartyOf("r.received_by")+`, `+sqlPartyOf("e.actor")+`, `+sqlPartyOf("$2::text")+`
 FROM curves c
 JOIN runs r ON r.id = c.run_id
 JOIN methods m ON m.name = r.method AND m.revision = r.method_revision
 LEFT JOIN exclusions e ON e.curve_id = c.id
-WHERE c.id = $1`, id).Scan(&f.RunPostedBy, &revisionBy, &qc, &superseded)
+WHERE c.id = $1`, id, reviewer).Scan(&f.RunPostedBy, &revisionBy, &qc, &superseded, &postedParty, &revisionParty, &reviewerParty)
 	if err != nil {
 		return nil, classify("select review facts of curve "+id, err)
 	}
@@ -283,6 +298,7 @@ WHERE c.id = $1`, id).Scan(&f.RunPostedBy, &revisionBy, &qc, &superseded)
 		return nil, fmt.Errorf("store: decode qc of curve %s's method: %w", id, err)
 	}
 	f.RevisionBy, f.SupersededBy, f.AllowSelfReview = deref(revisionBy), deref(superseded), q.AllowSelfReview
+	f.RunPostedByParty, f.RevisionByParty, f.ReviewerParty = deref(postedParty), deref(revisionParty), deref(reviewerParty)
 	return f, nil
 }
 
@@ -327,7 +343,7 @@ func reviewCurveTx(ctx context.Context, tx pgx.Tx, id, decision, status, reason,
 	if current != lab.StatusPendingReview {
 		return nil, lab.Errorf(lab.KindConflict, "curve %s was already reviewed: it is %s", id, current)
 	}
-	facts, err := loadReviewFacts(ctx, tx, id)
+	facts, err := loadReviewFacts(ctx, tx, id, actor)
 	if err != nil {
 		return nil, err
 	}
