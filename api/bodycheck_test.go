@@ -3,14 +3,13 @@ package api
 import (
 	"bytes"
 	"errors"
-	"math"
 	"net/http"
 	"net/http/httptest"
 	"strings"
 	"testing"
 
-	"github.com/getkin/kin-openapi/openapi3filter"
 	"github.com/labstack/echo/v4"
+	oapimw "github.com/oapi-codegen/echo-middleware"
 )
 
 // bigInvalidRun is a JSON run of about size bytes whose standards array is
@@ -55,32 +54,112 @@ func TestLargeInvalidBodyFirstBreachOnly(t *testing.T) {
 	}
 }
 
-// BenchmarkInvalidRunBody measures the spec validator's refusal of a 4 MB
-// invalid run: as before (every breach collected, each error's message
-// carrying the offending value), every breach with short messages, and the
-// first breach only (what a body over multiErrorLimit gets). Compare the two lines' ns/op, B/op and allocs/op
-// from one run (ratios only; the machine is shared).
+// BenchmarkInvalidRunBody measures the refusal of a 4 MB invalid run (50,000
+// standards, over maxItems 500, each invalid) by three steps, side by side:
+//   - validator_every_breach: the spec's validator alone, every breach
+//     collected (what a body of any size got two rounds ago);
+//   - validator_first_breach: the validator alone, first breach only (what
+//     a body over multiErrorLimit got before shapeCheck);
+//   - shape_first: the whole check as served (readBody, shapeCheck, which
+//     stops at the 501st standard, then the validator only if needed).
+//
+// Compare ns/op, B/op and allocs/op of the lines from one run (ratios only;
+// the machine is shared):
+//
+//	go test ./api -run '^$' -bench InvalidRunBody -benchtime 5x -count 3
 func BenchmarkInvalidRunBody(b *testing.B) {
 	body := bigInvalidRun(4 << 20)
-	for _, c := range []struct {
-		name     string
-		limit    int
-		messages bool // the schema errors' default messages, with the value
-	}{{"before", math.MaxInt, true}, {"every_breach", math.MaxInt, false}, {"first_breach", multiErrorLimit, false}} {
-		b.Run(c.name, func(b *testing.B) {
-			v := newTestSpecValidator(b)
-			v.multiLimit = c.limit
-			if c.messages {
-				o := *v.opts
-				o.Options = openapi3filter.Options{MultiError: true, AuthenticationFunc: openapi3filter.NoopAuthenticationFunc}
-				v.opts = &o
+	longNames := []byte(`{"method":"nitrate-uv","instrument":"photometer-7","acquired_at":"2026-03-02T08:00:00Z","standards":[` +
+		strings.TrimSuffix(strings.Repeat(`{"analyte":"`+strings.Repeat("n", 8000)+`","level":"L1","concentration":0.5,"responses":[0.01]},`, 500), ",") + `]}`)
+	request := func() echo.Context {
+		req := httptest.NewRequest(http.MethodPost, "/v1/runs", bytes.NewReader(body))
+		req.Header.Set("Content-Type", "application/json")
+		return echo.New().NewContext(req, httptest.NewRecorder())
+	}
+	v := newTestSpecValidator(b)
+	validatorOnly := func(opts *oapimw.Options) func() error {
+		return func() error {
+			if he := oapimw.ValidateRequestFromContext(request(), v.router, opts); he != nil {
+				return he
 			}
+			return nil
+		}
+	}
+	for _, c := range []struct {
+		name string
+		run  func() error
+	}{
+		{"validator_every_breach", validatorOnly(v.opts)},
+		{"validator_first_breach", validatorOnly(v.firstOnly)},
+		{"shape_first", func() error { return v.validate(request()) }},
+		// The same size inside every count: 500 standards whose analyte
+		// names run to 8,000 characters (maxLength 64), refused at the
+		// first name.
+		{"long_names_served", func() error {
+			req := httptest.NewRequest(http.MethodPost, "/v1/runs", bytes.NewReader(longNames))
+			req.Header.Set("Content-Type", "application/json")
+			return v.validate(echo.New().NewContext(req, httptest.NewRecorder()))
+		}},
+	} {
+		b.Run(c.name, func(b *testing.B) {
 			b.ReportAllocs()
 			b.SetBytes(int64(len(body)))
 			for b.Loop() {
-				if validateRun(v, body) == nil {
+				if c.run() == nil {
 					b.Fatal("the invalid run was accepted")
 				}
+			}
+		})
+	}
+}
+
+// TestShapeCheck: the breaches shapeCheck answers before the validator
+// decodes the body, each with its pointer, and what it leaves to the
+// validator.
+func TestShapeCheck(t *testing.T) {
+	v := newTestSpecValidator(t)
+	route, _, err := v.router.FindRoute(httptest.NewRequest(http.MethodPost, "/v1/runs", nil))
+	if err != nil {
+		t.Fatal(err)
+	}
+	schema := jsonBodySchema(route.Operation)
+	var junk strings.Builder
+	junk.WriteString(`{"method":"nitrate-uv","notes":[`)
+	for i := range 200000 {
+		if i > 0 {
+			junk.WriteByte(',')
+		}
+		junk.WriteString(`[1,2]`)
+	}
+	junk.WriteString(`]}`)
+	std := `{"analyte":"nitrate","level":"L1","concentration":0.5,"responses":[0.01]}`
+	for _, c := range []struct {
+		name, body, pointer, detail string
+	}{
+		{"member a closed object does not name, holding 2 MB", junk.String(), "/notes", `property "notes" is unsupported`},
+		{"nested member", `{"method":"m","standards":[` + std + `,{"analyte":"nitrate","lvel":"L2"}]}`, "/standards/1/lvel", `property "lvel" is unsupported`},
+		{"array over maxItems", `{"standards":[` + strings.Repeat(std+",", 500) + std + `]}`, "/standards", "maximum number of items is 500"},
+		{"string over maxLength", `{"method":"` + strings.Repeat("é", 65) + `"}`, "/method", "maximum string length is 64"},
+		{"trailing data", `{"method":"m"} {"method":"n"}`, "/", "data after the JSON value"},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			p := shapeCheck([]byte(c.body), schema)
+			if p == nil || p.p.Status != http.StatusBadRequest || len(p.p.Errors) != 1 ||
+				p.p.Errors[0].Pointer != c.pointer || !strings.Contains(p.p.Errors[0].Detail, c.detail) {
+				t.Fatalf("shapeCheck = %+v, want 400 at %s: %s", p, c.pointer, c.detail)
+			}
+		})
+	}
+	for _, c := range []struct{ name, body string }{
+		{"a valid run", `{"method":"m","instrument":"i","acquired_at":"2026-03-02T08:00:00Z","standards":[` + std + `]}`},
+		{"wrong types are the validator's", `{"method":1,"standards":"many"}`},
+		{"malformed JSON is the validator's", `{"method":`},
+		{"64 characters of two bytes each", `{"method":"` + strings.Repeat("é", 64) + `"}`},
+		{"500 standards, the maximum", `{"standards":[` + strings.Repeat(std+",", 499) + std + `]}`},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			if p := shapeCheck([]byte(c.body), schema); p != nil {
+				t.Fatalf("shapeCheck = %+v, want nil", p.p)
 			}
 		})
 	}

@@ -99,7 +99,7 @@ func (v *specValidator) validate(c echo.Context) error {
 	if p := checkContentType(c.Request(), route.Operation); p != nil {
 		return p
 	}
-	opts, p := v.checkBody(c)
+	opts, p := v.checkBody(c, route.Operation)
 	if p != nil {
 		return p
 	}

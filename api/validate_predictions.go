@@ -44,7 +44,7 @@ func predictionFastPath(c echo.Context) (*oapi.PredictionRequest, bool, error) {
 	if req.Body == nil {
 		return nil, false, nil
 	}
-	raw, err := io.ReadAll(req.Body)
+	raw, err := readBody(req)
 	if err != nil {
 		var mbe *http.MaxBytesError
 		if errors.As(err, &mbe) {

@@ -67,7 +67,7 @@ func runFastPath(c echo.Context) (*oapi.RunRequest, bool, error) {
 	if keys, ok := req.Header[headerIdempotencyKey]; ok && (len(keys) != 1 || !isIdempotencyKey(keys[0])) {
 		return nil, false, nil
 	}
-	raw, err := io.ReadAll(req.Body)
+	raw, err := readBody(req)
 	if err != nil {
 		// The validator reads the same bytes and then meets the same error
 		// (a body over the limit, a broken connection), and answers it as
