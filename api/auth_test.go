@@ -363,4 +363,5 @@ func TestScopeMatrix(t *testing.T) {
 	if want := len(ops) * len(callers); cells != want {
 		t.Errorf("ran %d cells, want %d", cells, want)
 	}
+	t.Logf("security: scope matrix: %d /v1 operations × %d callers = %d cases", len(ops), len(callers), cells)
 }
