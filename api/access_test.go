@@ -213,3 +213,41 @@ func TestReasonsRefuseBidiControls(t *testing.T) {
 		t.Errorf("a Hebrew reason: %s", r)
 	}
 }
+
+// TestReadsByRole: each role reads what it acts on (the spec's scope
+// table). A reviewer reads the run and the results it judges; a LIMS reads
+// the run, the curve's audit trail and the printable record; an instrument
+// reads the methods it posts for. People stay admin's. Before, QA and LIMS
+// tokens got 403 on the run, and only admin read methods.
+func TestReadsByRole(t *testing.T) {
+	t.Parallel()
+	e := newEnv(t)
+	e.method(t, "nitrate-uv", "nitrate")
+	_, instrument := e.token(t, "photometer", "runs:write")
+	_, lims := e.token(t, "lims", "results:read")
+	_, qa := e.token(t, "qa", "curves:review")
+	run := e.run(t, instrument, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 1)))
+	runPath := "/v1/runs/" + run.ID.String()
+	curve := "/v1/curves/" + run.Curves[0].ID.String()
+	for _, c := range []struct {
+		who, token, path string
+		want            int
+	}{
+		{"qa", qa, runPath, http.StatusOK},
+		{"qa", qa, runPath + "/results", http.StatusOK},
+		{"qa", qa, "/v1/methods/nitrate-uv", http.StatusOK},
+		{"qa", qa, "/v1/standard-materials", http.StatusOK},
+		{"lims", lims, runPath, http.StatusOK},
+		{"lims", lims, curve + "/audit", http.StatusOK},
+		{"lims", lims, curve + "/record.pdf", http.StatusOK},
+		{"lims", lims, "/v1/methods", http.StatusOK},
+		{"instrument", instrument, "/v1/methods/nitrate-uv", http.StatusOK},
+		{"instrument", instrument, curve + "/audit", http.StatusForbidden},
+		{"qa", qa, "/v1/people", http.StatusForbidden},
+		{"lims", lims, "/v1/people", http.StatusForbidden},
+	} {
+		if r := e.get(t, c.token, c.path); r.status != c.want {
+			t.Errorf("%s GET %s: %d, want %d", c.who, c.path, r.status, c.want)
+		}
+	}
+}
