@@ -231,7 +231,7 @@ func TestReadsByRole(t *testing.T) {
 	curve := "/v1/curves/" + run.Curves[0].ID.String()
 	for _, c := range []struct {
 		who, token, path string
-		want            int
+		want             int
 	}{
 		{"qa", qa, runPath, http.StatusOK},
 		{"qa", qa, runPath + "/results", http.StatusOK},

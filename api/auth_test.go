@@ -229,6 +229,10 @@ func TestScopeMatrix(t *testing.T) {
 		"getSampleResults": func(*testing.T) (call, int) {
 			return call{method: http.MethodGet, path: "/v1/samples/MX-1"}, http.StatusOK
 		},
+		"getResult": func(t *testing.T) (call, int) {
+			rs := decode[oapi.SampleResults](t, e.get(t, e.admin, "/v1/samples/MX-1"), http.StatusOK)
+			return call{method: http.MethodGet, path: fmt.Sprintf("/v1/results/%d", rs.Results[0].ID)}, http.StatusOK
+		},
 		"listResultEvents": func(*testing.T) (call, int) {
 			return call{method: http.MethodGet, path: "/v1/results?limit=5"}, http.StatusOK
 		},

@@ -58,6 +58,15 @@ func (s *Server) GetSampleResults(ctx context.Context, req oapi.GetSampleResults
 	return oapi.GetSampleResults200JSONResponse(oapi.SampleResults{SampleID: req.SampleID, Results: resultsOut(results), Cautions: calib.Cautions()}), nil
 }
 
+// GetResult returns one result as it stands now.
+func (s *Server) GetResult(ctx context.Context, req oapi.GetResultRequestObject) (oapi.GetResultResponseObject, error) {
+	r, err := s.lab.GetResult(ctx, req.ResultID)
+	if err != nil {
+		return nil, err
+	}
+	return oapi.GetResult200JSONResponse{Result: resultsOut([]lab.Result{*r})[0], Cautions: calib.Cautions()}, nil
+}
+
 // ListResultEvents serves the change feed of results, one keyset page at a
 // time.
 func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEventsRequestObject) (oapi.ListResultEventsResponseObject, error) {
@@ -74,7 +83,10 @@ func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEvents
 	for _, e := range page.Events {
 		oe := oapi.ResultEvent{Seq: e.Seq, At: oapi.NewTimestamp(e.At), Kind: oapi.ResultEventKind(e.Kind), Cause: e.Cause,
 			ReleaseState: oapi.ReleaseState(e.State), Reason: e.Reason, ResultID: e.ResultID, SampleID: e.SampleID,
-			RunID: uuidOf(e.RunID), CurveID: uuidOf(e.CurveID), Analyte: e.Analyte, Unit: e.Unit, Concentration: e.Concentration}
+			RunID: uuidOf(e.RunID), CurveID: uuidOf(e.CurveID), Analyte: e.Analyte, Unit: e.Unit, Concentration: e.Concentration,
+			AcquiredAt: oapi.NewTimestamp(e.AcquiredAt), Dilution: e.Dilution, StandardError: e.StandardError,
+			Interval:       oapi.Interval{Low: e.IntervalLow, High: e.IntervalHigh, Level: e.IntervalLevel, Bounded: e.IntervalBounded},
+			IntervalMethod: e.IntervalMethod, Flags: nonNilS(e.Flags), Reported: jsonPtr[oapi.ReportedValue](e.Reported)}
 		if e.Previous != "" {
 			prev := oapi.ReleaseState(e.Previous)
 			oe.PreviousState = &prev

@@ -130,6 +130,19 @@ type ResultEvent struct {
 	Analyte       string
 	Unit          string
 	Concentration *float64
+
+	// What a LIMS needs to act on the event, from the result (which never
+	// changes but for its release state).
+	AcquiredAt      time.Time
+	Dilution        float64
+	StandardError   *float64
+	IntervalLow     *float64
+	IntervalHigh    *float64
+	IntervalLevel   float64
+	IntervalBounded bool
+	IntervalMethod  string
+	Flags           []string
+	Reported        []byte // the reported value's JSON; nil where the method reports none
 }
 
 // FeedPage is one page of the change feed.

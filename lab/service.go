@@ -34,6 +34,9 @@ type Reader interface {
 	CurveInForce(ctx context.Context, instrument, analyte string, at time.Time) (*InForce, error)
 	RunResults(ctx context.Context, runID string) ([]Result, error)
 	SampleResults(ctx context.Context, sampleID string) ([]Result, error)
+	// GetResult returns one result as it stands now (KindNotFound with the
+	// path parameter result_id when there is none).
+	GetResult(ctx context.Context, id int64) (*Result, error)
 	ResultFeed(ctx context.Context, since string, limit int) (*FeedPage, error)
 	TrendSeries(ctx context.Context, f TrendFilter) (curves []CurveSummary, truncated bool, err error)
 	TrendSubjects(ctx context.Context) ([]TrendSubject, error)

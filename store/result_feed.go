@@ -121,7 +121,9 @@ func (db *DB) ResultFeed(ctx context.Context, since string, limit int) (*lab.Fee
 	}
 	rows, err := db.Pool.Query(ctx, `
 SELECT e.seq, e.at, e.kind, e.cause, e.release_state, coalesce(e.previous_state, ''), e.reason,
-       r.id, r.sample_id, r.run_id, r.curve_id, r.analyte, r.unit, r.concentration
+       r.id, r.sample_id, r.run_id, r.curve_id, r.analyte, r.unit, r.concentration,
+       r.acquired_at, r.dilution, r.standard_error, r.interval_low, r.interval_high, r.interval_level,
+       r.interval_bounded, r.interval_method, r.flags, r.reported
 FROM result_events e JOIN sample_results r ON r.id = e.result_id
 WHERE e.seq > $1
 ORDER BY e.seq
@@ -132,7 +134,9 @@ LIMIT $2`, after, limit+1)
 	events, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.ResultEvent, error) {
 		var e lab.ResultEvent
 		err := row.Scan(&e.Seq, &e.At, &e.Kind, &e.Cause, &e.State, &e.Previous, &e.Reason,
-			&e.ResultID, &e.SampleID, &e.RunID, &e.CurveID, &e.Analyte, &e.Unit, &e.Concentration)
+			&e.ResultID, &e.SampleID, &e.RunID, &e.CurveID, &e.Analyte, &e.Unit, &e.Concentration,
+			&e.AcquiredAt, &e.Dilution, &e.StandardError, &e.IntervalLow, &e.IntervalHigh, &e.IntervalLevel,
+			&e.IntervalBounded, &e.IntervalMethod, &e.Flags, &e.Reported)
 		return e, err
 	})
 	if err != nil {

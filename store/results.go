@@ -3,6 +3,7 @@ package store
 import (
 	"context"
 	"errors"
+	"fmt"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -119,6 +120,24 @@ func (db *DB) RunResults(ctx context.Context, id string) ([]lab.Result, error) {
 		return err
 	})
 	return out, err
+}
+
+// GetResult returns result id as it stands now.
+func (db *DB) GetResult(ctx context.Context, id int64) (*lab.Result, error) {
+	var out []lab.Result
+	err := db.readOnly(ctx, "result", func(tx pgx.Tx) error {
+		var err error
+		out, err = resultsWhere(ctx, tx, `id = $1`, id)
+		return err
+	})
+	if err != nil {
+		return nil, err
+	}
+	if len(out) == 0 {
+		msg := fmt.Sprintf("no result with id %d; result ids are the change feed's result_id and a result's id", id)
+		return nil, &lab.Error{Kind: lab.KindNotFound, In: lab.InPath, Field: "/result_id", Message: msg}
+	}
+	return &out[0], nil
 }
 
 // SampleResults returns every result for the LIMS sample id, across runs,

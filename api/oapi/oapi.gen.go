@@ -1811,16 +1811,32 @@ type Response = float64
 // Responses Replicate readings, in acquisition order.
 type Responses = []Response
 
-// ResultEvent defines model for ResultEvent.
+// ResultEvent One change of a result's release state, with what a LIMS needs to act
+// on it without a second call: the value with its interval, flags and
+// dilution, and the reported value where the method reports one. The
+// value fields are the result's (they never change); `release_state`
+// and `reason` are this event's. `GET /v1/results/{result_id}` gives the
+// result as it stands now.
 type ResultEvent struct {
-	Analyte string    `json:"analyte"`
-	At      Timestamp `json:"at"`
+	AcquiredAt Timestamp `json:"acquired_at"`
+	Analyte    string    `json:"analyte"`
+	At         Timestamp `json:"at"`
 
 	// Cause `run.create`, `samples.add`, `curve.review`, `curve.verification` or `curve.exclusion`.
-	Cause         string          `json:"cause"`
-	Concentration *float64        `json:"concentration"`
-	CurveID       UUID            `json:"curve_id"`
-	Kind          ResultEventKind `json:"kind"`
+	Cause         string   `json:"cause"`
+	Concentration *float64 `json:"concentration"`
+	CurveID       UUID     `json:"curve_id"`
+
+	// Dilution The dilution factor applied after inversion (the concentration is the curve's value × dilution).
+	Dilution float64 `json:"dilution"`
+
+	// Flags The result's flags, as on `SampleResult`.
+	Flags []string `json:"flags"`
+
+	// Interval Confidence interval of the concentration. When `bounded` is false, `low` and `high` are null.
+	Interval       Interval        `json:"interval"`
+	IntervalMethod string          `json:"interval_method"`
+	Kind           ResultEventKind `json:"kind"`
 
 	// PreviousState The state before; null for `created`.
 	PreviousState *ReleaseState `json:"previous_state"`
@@ -1831,13 +1847,21 @@ type ResultEvent struct {
 	// when the curve is rejected, failed, unfittable or superseded, or a
 	// verification failed before the sample. `release_reason` says which.
 	ReleaseState ReleaseState `json:"release_state"`
-	ResultID     int64        `json:"result_id"`
-	RunID        UUID         `json:"run_id"`
-	SampleID     string       `json:"sample_id"`
+
+	// Reported The value a report prints: x̂0 (undiluted, in the curve's unit) × dilution × final volume ÷ sample
+	// amount ÷ dry fraction, converted to the reporting unit, rounded, and qualified against the
+	// reporting and detection limits, the highest standard and the IS check. Absent when the
+	// analyte has no reporting rules or no concentration. The laboratory's accreditation,
+	// regulator and SOP come first; a qualified person reviews every result.
+	Reported *ReportedValue `json:"reported,omitempty"`
+	ResultID int64          `json:"result_id"`
+	RunID    UUID           `json:"run_id"`
+	SampleID string         `json:"sample_id"`
 
 	// Seq Position in the feed; increases with every event.
-	Seq  int64  `json:"seq"`
-	Unit string `json:"unit"`
+	Seq           int64    `json:"seq"`
+	StandardError *float64 `json:"standard_error"`
+	Unit          string   `json:"unit"`
 }
 
 // ResultEventKind defines model for ResultEvent.Kind.
@@ -1863,6 +1887,18 @@ type ResultFeed struct {
 type ResultQualifier struct {
 	Code  string `json:"code"`
 	Words string `json:"words"`
+}
+
+// ResultRecord defines model for ResultRecord.
+type ResultRecord struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions `json:"cautions"`
+
+	// Result A sample quantified against a curve when it was stored.
+	Result SampleResult `json:"result"`
 }
 
 // Review The review decision, present once the curve is reviewed.
@@ -2904,6 +2940,9 @@ type ServerInterface interface {
 	// ListResultEvents Change feed of sample results
 	// (GET /v1/results)
 	ListResultEvents(ctx echo.Context, params ListResultEventsParams) error
+	// GetResult One result, as it stands now
+	// (GET /v1/results/{result_id})
+	GetResult(ctx echo.Context, resultID int64) error
 	// CreateRun Post a run and fit its curves
 	// (POST /v1/runs)
 	CreateRun(ctx echo.Context, params CreateRunParams) error
@@ -3473,6 +3512,22 @@ func (w *ServerInterfaceWrapper) ListResultEvents(ctx echo.Context) error {
 	return err
 }
 
+// GetResult converts echo context to params.
+func (w *ServerInterfaceWrapper) GetResult(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "result_id" -------------
+	var resultID int64
+
+	err = runtime.BindStyledParameterWithOptions("simple", "result_id", ctx.Param("result_id"), &resultID, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "integer", Format: "int64", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter result_id: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetResult(ctx, resultID)
+	return err
+}
+
 // CreateRun converts echo context to params.
 func (w *ServerInterfaceWrapper) CreateRun(ctx echo.Context) error {
 	var err error
@@ -3840,6 +3895,7 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/runs/:id/results", wrapper.GetRunResults, options.OperationMiddlewares["getRunResults"]...)
 	router.GET(options.BaseURL+"/v1/samples/:sample_id", wrapper.GetSampleResults, options.OperationMiddlewares["getSampleResults"]...)
 	router.GET(options.BaseURL+"/v1/results", wrapper.ListResultEvents, options.OperationMiddlewares["listResultEvents"]...)
+	router.GET(options.BaseURL+"/v1/results/:result_id", wrapper.GetResult, options.OperationMiddlewares["getResult"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id/verifications", wrapper.ListVerifications, options.OperationMiddlewares["listVerifications"]...)
 	router.POST(options.BaseURL+"/v1/curves/:id/verifications", wrapper.CreateVerification, options.OperationMiddlewares["createVerification"]...)
 	router.POST(options.BaseURL+"/v1/curves/:id/exclusions", wrapper.CreateExclusion, options.OperationMiddlewares["createExclusion"]...)
@@ -7956,6 +8012,143 @@ func (response ListResultEvents503ApplicationProblemPlusJSONResponse) VisitListR
 	return err
 }
 
+type GetResultRequestObject struct {
+	ResultID int64 `json:"result_id"`
+}
+
+type GetResultResponseObject interface {
+	VisitGetResultResponse(w http.ResponseWriter) error
+}
+
+type GetResult200JSONResponse ResultRecord
+
+func (response GetResult200JSONResponse) VisitGetResultResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetResult400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetResult400ApplicationProblemPlusJSONResponse) VisitGetResultResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetResult401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetResult401ApplicationProblemPlusJSONResponse) VisitGetResultResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetResult403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetResult403ApplicationProblemPlusJSONResponse) VisitGetResultResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetResult404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetResult404ApplicationProblemPlusJSONResponse) VisitGetResultResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetResult429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetResult429ApplicationProblemPlusJSONResponse) VisitGetResultResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetResult500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetResult500ApplicationProblemPlusJSONResponse) VisitGetResultResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetResult503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetResult503ApplicationProblemPlusJSONResponse) VisitGetResultResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type CreateRunRequestObject struct {
 	Params   CreateRunParams
 	JSONBody *CreateRunJSONRequestBody
@@ -10109,6 +10302,9 @@ type StrictServerInterface interface {
 	// ListResultEvents Change feed of sample results
 	// (GET /v1/results)
 	ListResultEvents(ctx context.Context, request ListResultEventsRequestObject) (ListResultEventsResponseObject, error)
+	// GetResult One result, as it stands now
+	// (GET /v1/results/{result_id})
+	GetResult(ctx context.Context, request GetResultRequestObject) (GetResultResponseObject, error)
 	// CreateRun Post a run and fit its curves
 	// (POST /v1/runs)
 	CreateRun(ctx context.Context, request CreateRunRequestObject) (CreateRunResponseObject, error)
@@ -11057,6 +11253,31 @@ func (sh *strictHandler) ListResultEvents(ctx echo.Context, params ListResultEve
 	return nil
 }
 
+// GetResult operation middleware
+func (sh *strictHandler) GetResult(ctx echo.Context, resultID int64) error {
+	var request GetResultRequestObject
+
+	request.ResultID = resultID
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetResult(ctx.Request().Context(), request.(GetResultRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetResult")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetResultResponseObject); ok {
+		return validResponse.VisitGetResultResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // CreateRun operation middleware
 func (sh *strictHandler) CreateRun(ctx echo.Context, params CreateRunParams) error {
 	var request CreateRunRequestObject
@@ -11501,527 +11722,535 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P3dbyRHlieI/it2WVPICJUzGGQyJSWJAoZiZpayKz9YZKbUMxVSuNHdgmGVHmYhNwuSUcq86DsNXPS8",
-	"9jwMMA8XF5jdneduYKFe7Jsa+zbo/htWf8ninGNmbh7h8cUkU6qZLKCUDHe3b7Nj5/N3vt/K9GislVDW",
-	"bB18vzUUPBcl/nkqbDk9GlhRwq9cmKyUYyu12jrYOhOZVrlhVrMrLi07FwNdClZCEakuOlvJVim+m8hS",
-	"5FsHtpyIZMtkQzHiUNVIKjmajLYOusmWnY7F1sGWVFZciHLr3bt3ydaYl3wkrOvG8aS8FE8fzffh1VCw",
-	"DF7eM0zm0KSEx2Nuh1vJluIjrDhf2pV/U4rB1sHWr3aqWdiht2bn9eunj7agP09zMRprK1Q2/b2Yznfk",
-	"iGWFFMpuZ0NthGJvxJS1OIPyTBrG2YXWOcuGWmaizeyQWzbibwS8gQmTIu8p6KIwlhk+EIfMCMHsUDA9",
-	"FiWHVu4ZFrXZ6Sk/WlqvarxRX7ehs7V559fPhLqww62D3b3PE1iH8Btm3VpRQp3f/vFo+9/z7T93tx92",
-	"+gfb33y/m+zuff7u32yF5TK2lOqCJkcZW05GQtnmFZLhPZO5UFYOpCgTxg0ba2NFzq6kHTJpDSsnyixa",
-	"xaqRm67m09A4dvuEX4jjSWl02dztVIlr28/wi5TpAS7HuBSXUk8MG/MLccj4uYFhDXSJbweyNBZfhVF8",
-	"NxHltBoGVbe1bpdd/6C7pxO16AiUE3W3B+AdlDdjrYzAA/kFz09pt8KvTCvrFp+Px4XMcL/ujEt9XojR",
-	"b/5koKPfr9niCZWiRutDfc6LgS5HImdmqiy/TthVqdUFgx3JdMk4u+TFRDA9sUbmdHyo2gM28mV76q/O",
-	"Xr5IGGe0g9nVUJSCcaYmo3NRsnNRaHVhEsYVm6g3Sl8pNpCiyKGIOyBMlz1VcnUh2KXUBbcC3+JSs0C6",
+	"7P1fbxxJlieIfhW7rCkoIssZDFJUKkWigGFSUiW7pJSKlDJ7piIz3OhuwbCSh1mkmwXJqJQu+k4DFz2v",
+	"PQ8DzMPFBWZ357kbWGQv9i0b+zbo/gybn2RxzjEzN4/w+EeRyqwZFVAphrvbf7Nj5+/vfL+V6dFYK6Gs",
+	"2Tr4fmsoeC5K/PNU2HJ6NLCihF+5MFkpx1ZqtXWwdSYyrXLDrGZXXFp2Lga6FKyEIlJddLaSrVJ8N5Gl",
+	"yLcObDkRyZbJhmLEoaqRVHI0GW0ddJMtOx2LrYMtqay4EOXWu3fvkq0xL/lIWNeN40l5KU4ez/fh1VCw",
+	"DF7eM0zm0KSEx2Nuh1vJluIjrDhf2pV/U4rB1sHWr3aqWdiht2bn9euTx1vQn5NcjMbaCpVNfy+m8x05",
+	"YlkhhbLb2VAbodgbMWUtzqA8k4ZxdqF1zrKhlploMzvklo34GwFvYMKkyHsKuiiMZYYPxCEzQjA7FEyP",
+	"RcmhlXuGRW12esqPltarGm/U123obG3e+fUzoS7scOtgd++zBNYh/IZZt1aUUOe3fzza/vd8+8/d7Ued",
+	"/sH2N9/vJrt7n737N1thuYwtpbqgyVHGlpORULZ5hWR4z2QulJUDKcqEccPG2liRsytph0xaw8qJMotW",
+	"sWrkpqt5EhrHbr/kF+J4UhpdNnc7VeLa9jP8ImV6gMsxLsWl1BPDxvxCHDJ+bmBYA13i24EsjcVXYRTf",
+	"TUQ5rYZB1W2t22XXP+ju6UQtOgLlRN3tAXgH5c1YKyPwQH7O81ParfAr08q6xefjcSEz3K8741KfF2L0",
+	"mz8Z6Oj3a7b4kkpRo/WhPufFQJcjkTMzVZZfJ+yq1OqCwY5kumScXfJiIpieWCNzOj5U7QEb+bI99Vdn",
+	"L75MGGe0g9nVUJSCcaYmo3NRsnNRaHVhEsYVm6g3Sl8pNpCiyKGIOyBMlz1VcnUh2KXUBbcC3+JSs0C6",
 	"6JjnWhimtGUwNVM4tu+SrWOtBoXMPujs4UYRRk/KDMilsdwK2LjnEog4viT60+JEUxlsdXElcsaLUvB8",
-	"mjDeU/QKTqyeWMbZQNqE8VAYXtDE85FgsiJFSBKNlUXBpOrB8C+Gtu3m4wl2IxfqQ0+I1W+EYgXP3hgm",
-	"LmH5TKbHghUSCZNULL3e9kdnG9+ZtLOFRA92Ai8el6UuP2S3fcNMQMsdBsM41/mUGT41TKtiynpbsvZR",
-	"b4txldcWGYjFu2TrhbZP9ETlH3regTLlYTtWh0RcS2OxZyd8Wmiev9L6GS8vxIfuIM6ouM6EcKfDiPJS",
-	"lPcMy7QayItJKXJWyJGk3p6J8lJm4rXil1wW/Lz44B3OueXn3AiWcQUzeQ5rzbOhyJnSV0kYg8wEcCRm",
-	"OLEWyF+ur1SCBK01QBp6VUqLPIo0eHNzlbnRG6gxd3vsXGR8YgRe26FtaXoKCCtX+fmUWJRZbnI7sJNN",
-	"g3Vf70SMJ473ldbPuZq6S8f8LGTingmnpwTaKQ3Tl6LEGXA74baG+1rxiR3qUv5ZfNCj+VwaI9VFUl2X",
-	"SbgEdQkXgn4jcnYueClKmpWZQX/99dfbRxM7FMpCL8U8w5J+gaVTuiq4YinSqJRxa0t5PrGCtU6fHLNP",
-	"P3vQbS+XImZZUZq6cakzYQwcwsfKSjv9kDP4tSiKbcelSDWeWOICzkvB3yC3PymE5yXdcTx0M2BSJIuG",
-	"wbHtKT0YCJXDEUX2o6Lgk0K4a/O1MpPxWJdW5M9FLvkrnI8PzVLgkbhn2DG1ug29gMMBVEirGSmG8SwT",
-	"Y2s6yNO6NqALR/gciM1TmDbse55LKMOLkxIqsFKYrYMBL4yY7UlVmtlhKcxQF7k5xJnEPhRiYIEvZBal",
-	"LuiSUBdSCZSqBnxSWNYyQ2L2ioKufq3ww5GwQ53jVhxH/fh+65xnb/oZL7J+oa/6VheihB70x8TYieus",
-	"mBh5KZ57YZf2L+wObrcOtnI9gYsiAamMPtjtdpMm2Zh4U1jyqs2RVP0xN6Y/KHlG0/D90rrXrvnDjGSo",
-	"R9pkIufGykzaaZ8X4+HK3XiEH71LiMOBRd+wHPB6fT3oD+SmJUdc5dzqskH8Px4K4CCvQPhnAy6LSUn/",
-	"0la7FGUuM3uIP7QditIwXgrG80tpdDlFuc2KkVkpDkI7L/hIUH+un1Kh3Wp+eVlyEDcnSn43Ee49rJYb",
-	"gCg2HvV1vzR3uxVgKxfiUhTG6Sjo0wdxub15RREVLPvmuwkv6aJ8j/2vJ7aQouxnWr8x/fzOBuvbMXaC",
-	"+og/i7trC/QpG673pSjlwN0Y85Sgvu3f/vrRW5C6oyLE/PEyZ62nx1/tHB9/1WYjPmVAWxm/4FKB8GFN",
-	"Tyk9kiChoMzeYY8cFd7rJowDJ8Ren7HHJ0fs7Ovtz/c/Zc+RCrPPu93uo57KeCHP3Y0SN09HrODnusSj",
-	"es848s2MsAYaZvrKKc/uYMbfhSf6/E8iszCh1dV0oguZTTe82R6jVBouNbiXBrrMROLvLVPdWBtfUfND",
-	"ff8LZ5OLZY3Si6+JNQo3XBJrlGq8ItYoV7sgNqfnNQreQK7X6kGNWK9TokZ6b0Rh16GkG5SaoYtrlKxT",
-	"uTUKbELjgMclOlcUGpRhICU3UjzDWnlExBaTL2QlV3bzXSz5/DFeqJmt0bRhF56bxccxWUoslhOC2X1S",
-	"34nz57C2Zs1LP7+N4gO2dA2/aaLCfnvM2m2MvFBYEcgOOMGdraV3QLfzIL4DOt1ud7dhjx0pXkytWEnt",
-	"6/SaNPbrmzGSre8mXNlVRVxn/oDfvkPucGWZ1/DN7C7E/rnyjdMcN7ShCKcYp9Jgy/D6y8BOgPhbChB2",
-	"QSQGIdh02NdOhTD/ufVmkZ6qzifUYfhoXAjDMl6WU5ZK0w+WjZSdCzQcpNUjUpyR0lvCVWutyJ1k2FP+",
-	"O4asCDvqX+8c9aUJjA6UrQaVaZUJZfFblWBvuOuPEx2enkV1FlKYmi3jSqpcX7HWGM6Ssl6N4HkhXZp7",
-	"bCS4Yk/PmK/l0LMJPfVp96e/+U+7ew/YrxOW6dFIK/b0+GT7+Rkb4zkGnmJQ6hEbiZEup20cb8EvLgTN",
+	"mjDeU/QKTqyeWMbZQNqE8VAYXtDE85FgsiJFSBKNlUXBpOrB8C+Gtu3m4yl2IxfqQ0+I1W+EYgXP3hgm",
+	"LmH5TKbHghUSCZNULL3e9kdnG9+ZtLOFRA92Ai+elKUuP2S3fcNMQMsdBsM41/mUGT41TKtiynpbsvZR",
+	"b4txldcWGYjFu2TrS22f6onKP/S8A2XKw3asDom4lsZiz17yaaF5/krrZ7y8EB+6gzij4joTwp0OI8pL",
+	"Ud4zLNNqIC8mpchZIUeSensmykuZideKX3JZ8PPig3c455afcyNYxhXM5DmsNc+GImdKXyVhDDITwJGY",
+	"4cRaIH+5vlIJErTWAGnoVSkt8ijS4M3NVeZGb6DG3O2xc5HxiRF4bYe2pekpIKxc5edTYlFmucntwE42",
+	"DdZ9vRMxnjjeV1o/52rqLh3zs5CJeyacnhJopzRMX4oSZ8DthNsa7mvFJ3aoS/ln8UGP5nNpjFQXSXVd",
+	"JuES1CVcCPqNyNm54KUoaVZmBv31119vH03sUCgLvRTzDEv6OZZO6argiqVIo1LGrS3l+cQK1jp9esw+",
+	"ffig214uRcyyojR141Jnwhg4hE+UlXb6IWfwa1EU245LkWo8scQFnJeCv0Fuf1IIz0u643joZsCkSBYN",
+	"g2PbU3owECqHI4rsR0XBJ4Vw1+ZrZSbjsS6tyJ+LXPJXOB8fmqXAI3HPsGNqdRt6AYcDqJBWM1IM41km",
+	"xtZ0kKd1bUAXjvA5EJsTmDbse55LKMOLlyVUYKUwWwcDXhgx25OqNLPDUpihLnJziDOJfSjEwAJfyCxK",
+	"XdAloS6kEihVDfiksKxlhsTsFQVd/VrhhyNhhzrHrTiO+vH91jnP3vQzXmT9Ql/1rS5ECT3oj4mxE9dZ",
+	"MTHyUjz3wi7tX9gd3G4dbOV6AhdFAlIZfbDb7SZNsjHxprDkVZsjqfpjbkx/UPKMpuH7pXWvXfOHGclQ",
+	"j7TJRM6NlZm00z4vxsOVu/EIP3qXEIcDi75hOeD1+nrQH8hNS464yrnVZYP4fzwUwEFegfDPBlwWk5L+",
+	"pa12KcpcZvYQf2g7FKVhvBSM55fS6HKKcpsVI7NSHIR2vuQjQf25PqFCu9X88rLkIG5OlPxuItx7WC03",
+	"AFFsPOrrfmnudivAVi7EpSiM01HQpw/icnvziiIqWPbNdxNe0kX5HvtfT2whRdnPtH5j+vmdDda3Y+wE",
+	"9RF/FnfXFuhTNlzvS1HKgbsx5ilBfdu//fXjtyB1R0WI+eNlzlonx1/tHB9/1WYjPmVAWxm/4FKB8GFN",
+	"Tyk9kiChoMzeYY8dFd7rJowDJ8Ren7EnL4/Y2dfbn+1/yp4jFWafdbvdxz2V8UKeuxslbp6OWMHPdYlH",
+	"9Z5x5JsZYQ00zPSVU57dwYy/C0/0+Z9EZmFCq6vppS5kNt3wZnuCUmm41OBeGugyE4m/t0x1Y218Rc0P",
+	"9f0vnE0uljVKL74m1ijccEmsUarxilijXO2C2Jye1yh4A7leqwc1Yr1OiRrpvRGFXYeSblBqhi6uUbJO",
+	"5dYosAmNAx6X6FxRaFCGgZTcSPEMa+UREVtMvpCVXNnNd7Hk88d4oWa2RtOGXXhuFh/HZCmxWE4IZvdJ",
+	"fSfOn8PamjUv/fw2ig/Y0jX8pokK++0xa7cx8kJhRSA74AR3tpbeAd3Og/gO6HS73d2GPXakeDG1YiW1",
+	"r9Nr0tivb8ZItr6bcGVXFXGd+QN++w65w5VlXsM3s7sQ++fKN05z3NCGIpxinEqDLcPrLwM7AeJvKUDY",
+	"BZEYhGDTYV87FcL859abRXqqOp9Qh+GjcSEMy3hZTlkqTT9YNlJ2LtBwkFaPSHFGSm8JV621IneSYU/5",
+	"7xiyIuyof71z1JcmMDpQthpUplUmlMVvVYK94a4/TnQ4OYvqLKQwNVvGlVS5vmKtMZwlZb0awfNCujT3",
+	"2EhwxU7OmK/l0LMJPfVp96e/+U+7ew/YrxOW6dFIK3Zy/HL7+Rkb4zkGnmJQ6hEbiZEup20cb8EvLgTN",
 	"PuhrhqLISeVMawH2FDK6SMOu//t/6LJ//s8sl8UEKeM//2c2IB5PF5ORYP/8gx8uH+mJsvAgL6fM0xFg",
-	"bmyoW6qLnoKdlrASdNSuG99NeAG73/WjxuvxLCtFLq2b4VJcTAp4hwXPXp7AuEVPoZnukPGqLjYWpdHK",
-	"mTy8LaAUZlJY4hbr5zQXmRzxwsxTlFPoKhjFUYE64mrK/MeoThU8h4WryI5lpE42nZjK7DYzmtHNnAsr",
-	"cNb6qHxcIP0skw78qen7E7IZ5ZGmTzuyP5QXw8U8R8w9rxJYqjrhCrqVKv0alyu5sT/4L88EErOwDW88",
-	"w1UN61PcZCvaG323N+b3mZeX7rPW1VAolvpdlsJRJLt0u76l4ntrt8HvoomeT3JpH1+KNah5/YBUEsKM",
-	"fhS0oVfcsFwrkTDRueiwtJyoTlYKbkWeJixFatshUlv95uNxqS/jJ6WAboo87cy7JSTQgybLPnDbnnKS",
-	"9Q8VtBwqaq5nZuG5FdtWjkTTt7mwXBbNTOSYl1Zmk4KXJmFSZcUElbvcm1lLtC9wo1Wn0csivoa53fID",
-	"TLYCD+Za/2bROj7TFxuuorj0TkFriTPRbpmTZ2ZG4Gpu6usxx9vDLNg8dEEAYcaNrnKnaz5wqmVk5PwF",
-	"HBnrwj2YldKKUnK67MaT80IaMJNdTGQOhRt0CPV7pafqF4vTMMD9AuplNi5FJnKBVdHisvNpw23TU8Fn",
-	"qhDcCOfT42d6bneNpPIKv3lpEUXJDZcXlnBiRT4/00/gc4aEBVkMqJxlelLkzBkXfVmcLcVSEAhEjsQH",
-	"28KZSWlLpmSbvhpOo619rnUhuKofm7kxB8o7f6AinQhuBegRL5070SFTk6KYHcGQw1ZR6C1yhX/bMJBm",
-	"th9qIXMuKYeWC/2z21XYoSgjI4Jz+kLWgHoEVDsXdS0xaoivpBFuYLGaeH7y1hEZanoGWqlotqPKyB7f",
-	"OJRSBPMTnTpbmU6ArcLj1EhBDZwbEEMXrCM6vflvYGlGghs8s8haxkv53gvWLM9UPfQ7LkxTUp2SugDq",
-	"pmop2a3mvcljEF76qyiiXWNUEx6wtBL54c4jmT9NeiqN5H14Myvqw7MgrQOdklrBsyCfYyWlgDeXInB/",
-	"fbLDJiwN4jqWAplowos+iOzwwMnlBmsZaaWtVjKDN3kpBzbtsOgpa4U5AyLoNkybuUUwJEeRfGU1EBbY",
-	"N5ktpixUQmZ2lIB0+QbFP64uRMc3iG4HfpUYt0yqC2HsARZR4iq4iJpCj0VNOENxCYWDR8Eqi45Llcsi",
-	"vK1kuL0uG2ljGZB4ZXvKcyXUhkkqB6ivhbEXIIoSm0IiK2sZIXoq/d3jV2zncnfHlkLlJm132NPaUWcT",
+	"bmyoW6qLnoKdlrASdNSuG99NeAG73/WjxuvxLCtFLq2b4VJcTAp4hwXPXryEcYueQjPdIeNVXWwsSqOV",
+	"M3l4W0ApzKSwxC3Wz2kuMjnihZmnKKfQVTCKowJ1xNWU+Y9RnSp4DgtXkR3LSJ1sOjGV2W1mNKObORdW",
+	"4Kz1Ufm4QPpZJh34U9P3J2QzyiNNn3Zkfygvhot5jph7XiWwVHXCFXQrVfo1LldyY3/wX54JJGZhG954",
+	"hqsa1qe4yVa0N/pub8zvMy8v3Wetq6FQLPW7LIWjSHbpdn1LxffWboPfRRM9n+TSPrkUa1Dz+gGpJIQZ",
+	"/ShoQ6+4YblWImGic9FhaTlRnawU3Io8TViK1LZDpLb6zcfjUl/GT0oB3RR52pl3S0igB02WfeC2PeUk",
+	"6x8qaDlU1FzPzMJzK7atHImmb3NhuSyamcgxL63MJgUvTcKkyooJKne5N7OWaF/gRqtOo5dFfA1zu+UH",
+	"mGwFHsy1/s2idXymLzZcRXHpnYLWEmei3TInz8yMwNXc1NdjjreHWbB56IIAwowbXeVO13zgVMvIyPkL",
+	"ODLWhXswK6UVpeR02Y0n54U0YCa7mMgcCjfoEOr3Sk/VLxanYYD7BdTLbFyKTOQCq6LFZefThtump4LP",
+	"VCG4Ec6nx8/03O4aSeUVfvPSIoqSGy4vLOHEinx+pp/C5wwJC7IYUDnL9KTImTMu+rI4W4qlIBCIHIkP",
+	"toUzk9KWTMk2fTWcRlv7XOtCcFU/NnNjDpR3/kBFOhHcCtAjXjp3okOmJkUxO4Ihh62i0FvkCv+2YSDN",
+	"bD/UQuZcUg4tF/pnt6uwQ1FGRgTn9IWsAfUIqHYu6lpi1BBfSSPcwGI18fzkrSMy1PQMtFLRbEeVkT2+",
+	"cSilCOYnOnW2Mp0AW4XHqZGCGjg3IIYuWEd0evPfwNKMBDd4ZpG1jJfyvResWZ6peuh3XJimpDoldQHU",
+	"TdVSslvNe5PHILz0V1FEu8aoJjxgaSXyw51HMn+a9FQayfvwZlbUh2dBWgc6JbWCZ0E+x0pKAW8uReD+",
+	"+mSHTVgaxHUsBTLRhBd9ENnhgZPLDdYy0kpbrWQGb/JSDmzaYdFT1gpzBkTQbZg2c4tgSI4i+cpqICyw",
+	"bzJbTFmohMzsKAHp8g2Kf1xdiI5vEN0O/CoxbplUF8LYAyyixFVwETWFHouacIbiEgoHj4NVFh2XKpdF",
+	"eFvJcHtdNtLGMiDxyvaU50qoDZNUDlBfC2MvQBQlNoVEVtYyQvRU+rsnr9jO5e6OLYXKTdrusJPaUWcT",
 	"VQhjYtJRSIMabMZNT4VJTdxZhMLByIlHZQA8BTA3iu122Uw/ewo9bRLfDlVQLVULiTo99ZIemyGY4LyV",
 	"BuG6L1U/51aknhTXF6OixOVEOTs3mgF8BWzE8VYuzGE06nuGpeJ6DMc17FOTOjIqbU/Vu1ztL12GuUyw",
 	"10hzYQ6d8l9NRgvUanWFWoMqLVaGueO1lWzF2q8FZyvWhOFX0cmqFF7YE7/3t5It3OREpOpTjbRJXYry",
-	"QiikRMB4SAMi4bjUA1mIiCg5cpxsXW/D2LcveYmrAJOAZOo5uAK7iaAHfjbw1zOevXk5eCKtf/Dl/Kzg",
-	"8y949ua4NjP4+PQszA79dlN05kb12E0QvnwazZL7mqbqlGYKn72spov6G80ZPnjkJg5/+HbMU/WI5g4f",
-	"H9cmEB+d+Fk88ZNIHpuV7qaJmntz1oySx2k0KgICguAKDSMIteF/KyRM8CSVyGs2XK5XettI0Jtk4StS",
-	"cQKtw514yQuTsG7nARDfbufhw4crtZ8PHz6s6T8fNPfKlrp4Blep2VAPeDYUV0NeIu8OlZBvlWGtp2cv",
-	"2Weff9bd3mt7liB4oYL3WSEVul3PcgBNgimqLNa0FrgShb5aswCuv1jz4yteKlAQbNAhX2TdHs3wPK57",
-	"9XpmOlIbdVKbtEY+h5bqdFI0cjrVVQjMYyv8FJbxopOw40KqDjseilGH7X3GWrsPP99ts/2H99sHLN3d",
-	"3jNpD7l20jSei6lWOfvxH/bg1m65frcP4dP7JkV/n/DNfXb26JCle1AJs1caGAVlRDYB2uM/C9c+1oj7",
-	"7ZClp9v7VIZFRRKovqf4ub4U7Df4vXfMQrYd/cev2E9/9/d71PL+9q5J2UBPSjbfck+Fpnfjpne71ymz",
-	"QtWKOHck/Bp1wnoQeJj6pQZTtpVswXRsJVt79AuGs5VsQX/gXfd6zcsBFnWXaoC/7vu/9sKz033/1/5u",
-	"+A7qh52xIMDi5Zh/NxHgFG6EZRQVwVpwjD/dn5TV0R4D5VAXXpPlg1Ue7O6tFbzS3/7mN/+mSSbBkKJN",
-	"LRRe/U/qJ/Z1YGkEh06auoTsPuawyQvglTMtBgOZSaEsMtJ15sCkJDJn+pKXkqtMpOgkJEZjO02IT6YT",
-	"bUhlpQTUDs3gd0D2EpY6KRLZsHQAwnfi6kUfJRTFewpE8Qa1Ns+ITPS5bZQBKw4OpGf/df3KWKYf45VR",
-	"bO5dFql9lsqy/jsog2PazNzeZGqPV2Z+4E8VG+lcFNviuwmZfHWZi/KAwY3DS/bH827Czne/SdyDvi7l",
-	"hVTsj/jsuwnPSw6SrfsuYed73xwypdW2qwBrN8Bfp8/hT6cvaTk2WbFUaUXfdkJ4SR/fpu2a89h6PgJO",
-	"i/SgaSIWsxPHDUwEbIdzkpDQrOEVAoG5WMvUnWxVm76pXf8OZIRSXvuG41VLmPnxH1t//X//73/z9V+3",
-	"f/r//J8//h9gNbrC2Yu+o5WrTdmtzd3yiSX19vKD5WJreLAzosHS6o3OWD5oMEo59pnl4qIUYFYcsEEp",
-	"RK5HCVNwW7FxpLqJrEzkJdu/FKVpZHxfRQZIOBn0PRGoIAVSaJz16n78fme30+10m1X3zjNLq1UH+nH4",
-	"8F2yBbZK06TKzCwYRND7lzpC3XOqN6W95m1tN8wn0j4p+EUTJRkKfimFsSRUrqoIBa6zIS9RMSfz9cLx",
-	"kjgYslFpGhx6ZmxG0lipMkvn13jhZEASyXJzYxF4+aUDoq/gNKD83tg9etUH1fjiTUUfMf9R8/kALqHW",
-	"9d2mriN5XdVzJLzwtWo6Pu5+ryaMtXCT5ugMILxiZKJQL7JyMgM5XyP+81K8CF+D9lbLxkuK/ASDNsWx",
-	"JImfKV0y3+GEXZR6MoY4jqmj5FLRZW5kdb2t75QMfTyBbjUdiJrz2GysBMQAirxOoOESsaIcSUUUpTUh",
-	"gdq5XtWu2PYNlfaoP1w1rlP86F2kpzH5EtIapj4Xl5K6blrTnet24jn3f/mvV+y3TLErHDczGS/ETQeA",
-	"ZqWVI6Cv3PeoGNJ4O/CieDnYOvjjOtTmm1k2+KQUGPSsFeOKBVodjmrNZYaMvaVw25BsBOSz11+f3s1w",
-	"yg1gBH7y6YMFHAKafuf29vve+8ZyO1nvlJzRp5EHVn0Yr49fP2eZrmS7Bc5DQYs0R1s9q9Rfi+h95b4O",
-	"xM/dhCvLuc9AGYGbuZ9xlcucW7GQNIUvQBGf6VI4XXnKJ1anwcMIJZproO1YMZrIC/lGsBYKQrDrSIUN",
-	"UxRxEgsKt9cmY0SNjn0vm2iZHyvoDFWzIvBLfeUapxAPPOS543wU7LRCGoEOQmYygn+UR85IIzrTzBeF",
-	"Ua1/hr8OReYP8isfHy/YBPqEGnStBHMgFuRXQstDpxhDvfCGi3vTR027yG+9V67tbKi1EcajLJhK4E4Y",
-	"L4yubAuOaaA9wBVqZAJIgzMgVhvRievngvZjPjOqMNxbH1fUVW7e0MWGjf9ZlLo/5Cov3CLPby74pE4M",
-	"DIVmOo9FdiVK0KuMrfNvKHU+yeAYSTWQSlrh9+chqRb8vCjBeKmNWO19QngSRMADozfP1iV1zA4v+zva",
-	"59myeFc3z34TjfHcftOZnJ3GGfF+/japiZ/16x7FqbptBxoIFqNIXg6sWVBLBKbZMxwVfQ23RlLTudTk",
-	"xEglMieHNSphESVHPdFltlqzNaP3WeBiMdJkAsVNiiLU+nLoOTey0Ydn6vwfvE9tFdEiFVh4c9NI/G6k",
-	"H/JavtU382Q04uWUpM+xLIVZLKpLEKD4JVGkTAAbXbNYOmMJQ4SYmqFCK7FwAhfwfJFUx43tx27v69Ol",
-	"r+JSzaSp4OiHEdfPuAXS4q8nbtO6K0aTuWXO2IAr4HdDQp5r0Qw3DSta64X7/Jk0m7ok3ngDbaBgnNlK",
-	"c9oBbvojXa7ckl9y81yTUiACIVpV6oW4thFg0NwymK16dVF/1pnyF7HQuoHaHL32eKzvpKPP89wcRHA5",
+	"QiikRMB4SAMi4bjUA1mIiCg5cpxsXW/D2LcveYmrAJOAZOo5uAK7iaAHfjbw1zOevXkxeCqtf/DF/Kzg",
+	"88959ua4NjP4+PQszA79dlN05kb1xE0QvjyJZsl9TVN1SjOFz15U00X9jeYMHzx2E4c/fDvmRD2mucPH",
+	"x7UJxEcv/Sy+9JNIHpuV7qaJmntz1oySx2k0KgICguAKDSMIteF/KyRM8CSVyGs2XK5XettI0Jtk4StS",
+	"cQKtw514yQuTsG7nARDfbufRo0crtZ+PHj2q6T8fNPfKlrp4Blep2VAPeDYUV0NeIu8OlZBvlWGtk7MX",
+	"7OFnD7vbe23PEgQvVPA+K6RCt+tZDqBJMEWVxZrWAlei0FdrFsD1F2t+fMVLBQqCDTrki6zboxmex3Wv",
+	"Xs9MR2qjTmqT1sjn0FKdTopGTqe6CoF5bIWfwjJedBJ2XEjVYcdDMeqwvYestfvos9022390v33A0t3t",
+	"PZP2kGsnTeO5mGqVsx//YQ9u7Zbrd/sQPr1vUvT3Cd/cZ2ePD1m6B5Uwe6WBUVBGZBOgPf6zcO1jjbjf",
+	"Dll6ur1PZVhUJIHqe4qf60vBfoPfe8csZNvRf/yK/fR3f79HLe9v75qUDfSkZPMt91Roejduerd7nTIr",
+	"VK2Ic0fCr1EnrAeBh6lfajBlW8kWTMdWsrVHv2A4W8kW9Afeda/XvBxgUXepBvjrvv9rLzw73fd/7e+G",
+	"76B+2BkLAixejPl3EwFO4UZYRlERrAXH+NP9SVkd7TFQDnXhNVk+WOXB7t5awSv97W9+82+aZBIMKdrU",
+	"QuHV/6R+Yl8HlkZw6KSpS8juYw6bvABeOdNiMJCZFMoiI11nDkxKInOmL3kpucpEik5CYjS204T4ZDrR",
+	"hlRWSkDt0Ax+B2QvYamTIpENSwcgfCeuXvRRQlG8p0AUb1Br84zIRJ/bRhmw4uBAevZf16+MZfoxXhnF",
+	"5t5lkdpnqSzrv4MyOKbNzO1NpvZ4ZeYHfqLYSOei2BbfTcjkq8tclAcMbhxesj+edxN2vvtN4h70dSkv",
+	"pGJ/xGffTXhecpBs3XcJO9/75pAprbZdBVi7Af46fQ5/On1Jy7HJiqVKK/q2E8JL+vg2bdecx9bzEXBa",
+	"pAdNE7GYnThuYCJgO5yThIRmDa8QCMzFWqbuZKva9E3t+ncgI5Ty2jccr1rCzI//2Prr//t//5uv/7r9",
+	"0//n//zx/wCr0RXOXvQdrVxtym5t7pZPLKm3lx8sF1vDg50RDZZWb3TG8kGDUcqxzywXF6UAs+KADUoh",
+	"cj1KmILbio0j1U1kZSIv2f6lKE0j4/sqMkDCyaDviUAFKZBC46xX9+P3O7udbqfbrLp3nllarTrQT8KH",
+	"75ItsFWaJlVmZsEggt6/1BHqnlO9Ke01b2u7YT6V9mnBL5ooyVDwSymMJaFyVUUocJ0NeYmKOZmvF46X",
+	"xMGQjUrT4NAzYzOSxkqVWTq/xgsnA5JIlpsbi8DLLx0QfQWnAeX3xu7Rqz6oxhdvKvqI+Y+azwdwCbWu",
+	"7zZ1Hcnrqp4j4YWvVdPxcfd7NWGshZs0R2cA4RUjE4V6kZWTGcj5GvGfl+LL8DVob7VsvKTITzBoUxxL",
+	"kviZ0iXzHU7YRaknY4jjmDpKLhVd5kZW19v6TsnQx5fQraYDUXMem42VgBhAkdcJNFwiVpQjqYiitCYk",
+	"UDvXq9oV276h0h71h6vGdYofvYv0NCZfQlrD1OfiUlLXTWu6c91OPOf+L//1iv2WKXaF42Ym44W46QDQ",
+	"rLRyBPSV+x4VQxpvB14ULwZbB39ch9p8M8sGvywFBj1rxbhigVaHo1pzmSFjbyncNiQbAfns9dendzOc",
+	"cgMYgZ98+mABh4Cm37m9/b73vrHcTtY7JWf0aeSBVR/G6+PXz1mmK9lugfNQ0CLN0VbPKvXXInpfua8D",
+	"8XM34cpy7jNQRuBm7mdc5TLnViwkTeELUMRnuhROV57yidVp8DBCieYaaDtWjCbyQr4RrIWCEOw6UmHD",
+	"FEWcxILC7bXJGFGjY9/LJlrmxwo6Q9WsCPxCX7nGKcQDD3nuOB8FO62QRqCDkJmM4B/lkTPSiM4080Vh",
+	"VOuf4a9DkfmD/MrHxws2gT6hBl0rwRyIBfmV0PLQKcZQL7zh4t70UdMu8lvvlWs7G2pthPEoC6YSuBPG",
+	"C6Mr24JjGmgPcIUamQDS4AyI1UZ04vq5oP2Yz4wqDPfWxxV1lZs3dLFh438Wpe4PucoLt8jzmws+qRMD",
+	"Q6GZzmORXYkS9Cpj6/wbSp1PMjhGUg2kklb4/XlIqgU/L0owXmojVnufEJ4EEfDA6M2zdUkds8PL/o72",
+	"ebYs3tXNs99EYzy333QmZ6dxRryfv01q4mf9ukdxqm7bgQaCxSiSlwNrFtQSgWn2DEdFX8OtkdR0LjU5",
+	"MVKJzMlhjUpYRMlRT3WZrdZszeh9FrhYjDSZQHGTogi1vhx6zo1s9OGZOv8H71NbRbRIBRbe3DQSvxvp",
+	"h7yWb/XNPBmNeDkl6XMsS2EWi+oSBCh+SRQpE8BG1yyWzljCECGmZqjQSiycwAU8XyTVcWP7sdv7+nTp",
+	"q7hUM2kqOPphxPUzboG0+OuJ27TuitFkbpkzNuAK+N2QkOdaNMNNw4rWeuE+fybNpi6JN95AGygYZ7bS",
+	"nHaAm/5Ilyu35BfcPNekFIhAiFaV+lJc2wgwaG4ZzFa9uqg/60z5l7HQuoHaHL32eKzvpKPP89wcRHA5",
 	"pO1sNSns2omzlOiCQDj0xGZ6JEjUCOrBwURlDirrX/4JOUqIOiQZpKeEsXLksHpUNtSlSYLtJljOmbOc",
 	"V34cNZ8T0Jx7T6jjryoNaPZm23sDiLx+PYNgOAW7by7Knkpd/eRSDB7OaYcdVShSxpYcpUOYKuMd3kmB",
-	"bDo9dVIKuEDw2sf7nRgixxJPDHVNglEbejIOn6OatqdaKZGpFFyEVN7HL2HgabvRIEATNU8IUXMFTpKg",
-	"R9IDN6NxLAJr4VsYPsVsOLwH+A4mHiQCI9oHTkNBXhp/muQXpOxc7AY5r1pFf06ih3Nfwzsezn2DXktf",
-	"9K+XIMvBDZWX/ArhADgr9MXM8vJraZo989wmhcq9Zc77a+TEARQF/hX62PfOZ0Yq8DAt5210MThe3xnp",
-	"vl8yW0tFV7cZ16ZvziMiKHuqyj/dX1h7tdXXlLbtUFi+ybf9JcpGd3z7m6h8Zojn7HxXKxtvvtpW84OY",
-	"6WASDpTfeNUaNM3XQlpMK7AZHX6pxJx+sILeyyW/UNoAmYHImOonHIDq1pd2BqyJtZQm5b4uQboqtSZK",
-	"ViOKqBbCD8hLpoufeDcp0tosQ9ggwtpok4qOIgwK2w2k0Zlqb6Zky2Z9ftYyZGGwoiTcpOZCKxv2mtpm",
-	"H12ilzesOpglGo0GJb+4aZ+DyxuuZXMs7W63++MPrZlFRetTbarbO7WfN1aRkhh34/GQQL3mukehq/24",
-	"5WbstmLKfAFDOGhY4IYjJRF4kX59VvuMGqlD1qXz7LfabThT096aPTfRVIauhk0cLdOCOYw25tzpSuYI",
-	"ROM+jA7UQoJ6FpS4s+p9jN9AtMQOO6rcidG/YkwITX1Sx6eHIZqHYkUVLam//OtfbyVb3ikXu02xTOt6",
-	"bFZ9PqFaT32l0aujqv7o6WloKgzeSSybhnjVnEVuwQOkZiNfr74Bl4XI+5UjyHy0V2UNwI+c8VeSn86Y",
-	"GxP7qEd+w+3N2NBbs95uZjm9TdPnCqCH1TRzU6POze0m84aPG1ounKJ1Ta3uh9OExirHBq1hfd8v0SI2",
-	"UbxHLkC7yUOA3rABRhciaK0UuUPkCcIia4WggN86cki+mVH0d/uQ7dIdQ/r3zo0hd9Zwg34ce4xswBOv",
-	"smV2GlzkXFjpewWKLrfie+acfAupJ/6mNjWqtAG5Xsz5lYIwAkWThLzgjq/KNG2wOScAkKv6FN0KjazU",
-	"dVafNryqmbLXgm+PRxCXj3T2rsWZvkZRts1HKWy89SSyBUuyftB9ba3m5Tu/c9yNhw0kbHcbHGvzRjeP",
-	"w4B1MF9y9vguCrtvDiaf3zZLJzACFN9gCquDtJYCY2a56voRN6bFMbaz23g95fsrcW0blO5kCBGkV3QY",
-	"aaVUbxi37FzbIRMKICz9LFZGToAhMhSXBg758Lfz5+KlcEUDV187S7fTX+8MBa1FDc0qTWYOVtPaez+6",
-	"hpABuH+c0x6fddkzsc8eS3PUKSjnctenSzQ9oJABfMYQDpSNNGpuuWJDXgwqEADLC++T48Lz6l58KcQW",
-	"DMRVPxw+0x/osm/2UohP2DHf7pGBHK3opObsKWoZuw1hxxSOFyYPu1GPc0MIpdBCWnfpbxzkVrLV2K01",
-	"hQg3/Y9c1ajS/dpX7F4+EVenofonujzbQ7HBGygWxjxzBpYGTIVAeiLDXOw+XIlkAcSX5FjA82YV6peC",
-	"F3a4IU2oGEs/e/oNbcR8uubUULsvf7/lu3BKhWd3uWuqaXM/PVsvJH925xNCToSBtB0p7Rw0UBzCuhT+",
-	"Z55/qT7vw8drqjeWROgvB39ZD3RmrtKl6C9zdS6LaC9FBuHD0w2q21T1E2LmV7hNzI28phqZXZiZrldz",
-	"Ek15FKXuVih0p3FLVqxEUwSjQ0ZBPC0vriTeBS1xlCrxzv+l26kzkTmf7q8VmPPNbIKZbvLp/XeNoTpP",
-	"1Z8I6Gg9YOhZA1YFw7bW7RezW980YJQ9BbNfyY6PvwJcEKodUmaQ5coF9Uf2fidCYZ4k4rRcIXKikvlt",
-	"dS0iHDlDLP+Unri4ou+yvvudVLBj7g4sJ6qN+vmgJrmHQKm4JzoOmKmWAWa9Hp+GIu/g1qA5atp77jYP",
-	"KQtEYQRZWluBAUKjQsHVG9OuadW48QJxo7XsjaT0Fv77KFohPokyu4RD6P57vpXUPsR2K8ne/6RZ3Eq2",
-	"wuQ2dsFZPTaE+V0m74418fCrNUDvuWqrTkDliYdAhARvE19PlJuIdAQQdWzDqcF9hQLymmLzHIfp5sCt",
-	"MR6mRrIXqFllPb+ZtBFRk/VFthXOVYT8RxPkXaGYJGYSosSuZqWw9TQM9UiupRq26st3fkubDUzCfkrP",
-	"sOQsMvkKoWpmTSvVmO9H84JSdNmGvFU10BCfVjmKxwYniuxMzwl1sMI0Slha6CtHT+ESTkPkZYPtkko3",
-	"cyWLo71XKlnx8tdjoRYlW3Mjk4a5LriY5PNp1H2ogFEUc+s3P/3d/6+N+diCjLnIgQT5g3lXnmASzgrY",
-	"zNAq5UXhZjoaW20hycXcdMbz6OdwfqqCkmQd5OZFEfEbGrIw6N0FwnuNl1/Ppg35jFtB2/9GPMpaUbce",
-	"KJSbgI90WAlUpciEvBT5zYjFjehaHmmRl5UK2ua1jCSz6q7o9lrzzmrS0Vd0paqxcSGrgLzNaMurYaxr",
-	"8MrbgpcIfmOgxiaFQ4N8dgOnA+M7XO8TWHxjdV50XROkkvuAF4UPE/Pvb4JQPWv2pV41zvJNcEEeebxT",
-	"7xSnbHAZdRghCUX7zgbKGEzkNbYszUppZcaLPlorUuDb/X5oL4MZm1kiX0u2HBQGAEt2dz/fv7+9x3wZ",
-	"n6Jw4MCp7CxgzHU/u6m7Sm1wN+mOn4uETW/ci0UQmBC7YIdiSvEJfnJR6LgaTmHGOwsQNWdRbhePynHC",
-	"jApBN2l8MKs3xfcrdIPA8vT4S/aHPRY6R/svYfc793/84V//dufsxo19t7Cxph2fsN3uezVo5MWINzMS",
-	"YWf869/iuQrKJzxS9aiaFOvpo5M33O9rRv1HpdaXTs6g0BdYptmT/V//1oUzKZC3XRBRezYMyEYgZSpf",
-	"HFbWuhrKbEg1ujNC8Z5ngOM/zznkW7SMc+cxWUQ35jf5UkzBZ/pCNiJQEajoPQM+qi4XSKR58WoXr3NZ",
-	"qnJ5HlwQNmJjPIThSpzY2ZQoG8P1OgM36ZFjY+3cUDBtQ9+IYtCvgmabjcCwD+CczMWTYR2GQSXbVAnF",
-	"ygGqz7aYCkPARhI2z6DdzMY6DmQDMF0q0AxXEst263glrkafiOYReUxXZAPcibjWObv2TKQZtHAhL4Va",
-	"gP8wg/i3cM1Qakm9x06aUG7K2fUbhaRvoUanqIuhVb2CyD9rVOVAXgskFH1+IfpDPWlyjn8RGAlHU3Lt",
-	"HGZhXDcFmt0MxcCBjs4NwDuhUc8ASnCg6+rrmvJ8XUejmzjTRKX6erxWbE4o/dJ9vwDQNXK9iZdmVdCh",
-	"78VMYF84u0lM5BbPZfM2mQnuI4LXROGJ+t4gwom2+/okhhpaidXtq13c1xtq025wYZB8vR5dj/GXx6VU",
-	"mRxzZ5F1iec5qCeRBx3xXDjvTSSB59PKGyhB67x37LRemxmy/eDgDljDjVCKwcQIw8wkG1a+oWgh3t/b",
-	"a3fYmbBM2kC1SjGPPQ6w4u4CAsrpElVYDUQFjP23f93U1HcrXCLqV9F6HFyscPwmWZDXoNt5+KDTcK+s",
-	"9lxY6/6o7NQOVAa1sOVEEafHFYSYbevBNgaKz4HU9hRld2ylwXXUpYqJEWhxWclTDiF2W9VN1Z6BoY2A",
-	"pd///gFZC7LYO7e92OfHj5eC0ry+GfTMJFHcgsfe5599vr8y4+ONLrP19UZLbrlF+wDsSKC3oflBKsGv",
-	"OBx3d2yBCJyLGNzEa+vrlGABA/gz3ZCOYDZfk023YaAcjeTer9tMTmfSBqdsyn7LzrvsN+x898cfrg9Z",
-	"WoPrce/dqxDXmPZUvRz8u/fjD9c//iOhvn6+/+mn23twZF7Mgea1QGWnzkV58dPf/KfnvASn2dwmxKxj",
-	"7KHI2wnKRBTNpHpqLojvgKX744K6l7PfgF4IolLy9k5rF35e72Ttb8/bSQ1Qpqf+yBN2nrAsYfk3hyx9",
-	"sEYV314kLCqWsItvDiFnujQ1DQzjFpEeEuYwtB10w4yyKGO9Sbd7X7Au4UNKNShIkkzYee2dwz53br1g",
-	"SiVjtLvKOH2csZyVEo5B0lPumWA57OtCqotDhhbRUgqf6/YcOq7EBYVxUQJ5qoBq7qlcDgboOowpj9oJ",
-	"u6j3CywEI2EBwPuC/Zbt+pnYP3mGAONjfSXcxuI//nD97bmbP5hwcT3uG24nNB3ho9YuTr34tvXT3/39",
+	"bDo99bIUcIHgtY/3OzFEjiWeGOqaBKM29GQcPkc1bU+1UiJTKbgIqbyPX8LA03ajQYAmap4QouYKnCRB",
+	"j6QHbkbjWATWwrcwfIrZcHgP8B1MPEgERrQPnIaCvDT+NMkvSNm52A1yXrWK/pxED+e+hnc8nPsGvZa+",
+	"6F8vQZaDGyov+RXCAXBW6IuZ5eXX0jR75rlNCpV7y5z318iJAygK/Cv0se+dz4xU4GFaztvoYnC8vjPS",
+	"fb9ktpaKrm4zrk3fnEdEUPZUlX+6v7D2aquvKW3bobB8k2/7S5SN7vj2N1H5zBDP2fmuVjbefLWt5gcx",
+	"08EkHCi/8ao1aJqvhbSYVmAzOvxCiTn9YAW9l0t+obQBMgORMdVPOADVrS/tDFgTaylNyn1dgnRVak2U",
+	"rEYUUS2EH5CXTBc/8W5SpLVZhrBBhLXRJhUdRRgUthtIozPV3kzJls36/KxlyMJgRUm4Sc2FVjbsNbXN",
+	"PrpEL29YdTBLNBoNSn5x0z4Hlzdcy+ZY2t1u98cfWjOLitan2lS3d2o/b6wiJTHuxuMhgXrNdY9CV/tx",
+	"y83YbcWU+QKGcNCwwA1HSiLwIv36rPYZNVKHrEvn2W+123Cmpr01e26iqQxdDZs4WqYFcxhtzLnTlcwR",
+	"iMZ9GB2ohQT1LChxZ9X7GL+BaIkddlS5E6N/xZgQmvqkjk8PQzQPxYoqWlJ/+de/3kq2vFMudptimdb1",
+	"2Kz6/JJqPfWVRq+Oqvqjp6ehqTB4J7FsGuJVcxa5BQ+Qmo18vfoGXBYi71eOIPPRXpU1AD9yxl9Jfjpj",
+	"bkzsox75Dbc3Y0NvzXq7meX0Nk2fK4AeVtPMTY06N7ebzBs+bmi5cIrWNbW6H04TGqscG7SG9X2/RIvY",
+	"RPEeuwDtJg8BesMGGF2IoLVS5A6RJwiLrBWCAn7ryCH5ZkbR3+1Dtkt3DOnfOzeG3FnDDfpJ7DGyAU+8",
+	"ypbZaXCRc2Gl7xUoutyK75lz8i2knvib2tSo0gbkejHnVwrCCBRNEvKCO74q07TB5pwAQK7qU3QrNLJS",
+	"11l92vCqZspeC749HkFcPtLZuxZn+hpF2TYfpbDx1pPIFizJ+kH3tbWal+/8znE3HjaQsN1tcKzNG908",
+	"DgPWwXzJ2eO7KOy+OZh8ftssncAIUHyDKawO0loKjJnlqutH3JgWx9jObuP1lO+vxLVtULqTIUSQXtFh",
+	"pJVSvWHcsnNth0wogLD0s1gZOQGGyFBcGjjkw9/On4uXwhUNXH3tLN1Of70zFLQWNTSrNJk5WE1r7/3o",
+	"GkIG4P5xTnt81mXPxD57LM1Rp6Ccy12fLtH0gEIG8BlDOFA20qi55YoNeTGoQAAsL7xPjgvPq3vxpRBb",
+	"MBBX/XD4TH+gy77ZSyE+Ycd8u0cGcrSik5qzp6hl7DaEHVM4Xpg87EY9zg0hlEILad2lv3GQW8lWY7fW",
+	"FCLc9D92VaNK92tfsXv5VFydhuqf6vJsD8UGb6BYGPPMGVgaMBUC6YkMc7H7cCWSBRBfkmMBz5tVqF8I",
+	"XtjhhjShYiz97Ok3tBHz6ZpTQ+2++P2W78IpFZ7d5a6pps19crZeSP7szieEnAgDaTtS2jlooDiEdSn8",
+	"zzz/Un3eh4/XVG8sidBfDv6yHujMXKVL0V/m6lwW0V6KDMKHpxtUt6nqJ8TMr3CbmBt5TTUyuzAzXa/m",
+	"JJryKErdrVDoTuOWrFiJpghGh4yCeFpeXEm8C1riKFXinf9Lt1NnInM+3V8rMOeb2QQz3eTT++8aQ3VO",
+	"1J8I6Gg9YOhZA1YFw7bW7RezW980YJSdgNmvZMfHXwEuCNUOKTPIcuWC+iN7vxOhME8ScVquEDlRyfy2",
+	"uhYRjpwhln9KT1xc0XdZ3/1OKtgxdweWE9VG/XxQk9xDoFTcEx0HzFTLALNej09DkXdwa9AcNe09d5uH",
+	"lAWiMIIsra3AAKFRoeDqjWnXtGrceIG40Vr2RlJ6C/99FK0Qn0SZXcIhdP8930pqH2K7lWTvf9IsbiVb",
+	"YXIbu+CsHhvC/C6Td8eaePjVGqD3XLVVJ6DyxEMgQoK3ia8nyk1EOgKIOrbh1OC+QgF5TbF5jsN0c+DW",
+	"GA9TI9kL1Kyynt9M2oioyfoi2wrnKkL+ownyrlBMEjMJUWJXs1LYehqGeiTXUg1b9eU7v6XNBiZhP6Vn",
+	"WHIWmXyFUDWzppVqzPejeUEpumxD3qoaaIhPqxzFY4MTRXam54Q6WGEaJSwt9JWjp3AJpyHyssF2SaWb",
+	"uZLF0d4rlax4+euxUIuSrbmRScNcF1xM8vk06j5UwCiKufWbn/7u/9fGfGxBxlzkQIL8wbwrTzAJZwVs",
+	"ZmiV8qJwMx2NrbaQ5GJuOuN59HM4P1VBSbIOcvOiiPgNDVkY9O4C4b3Gy69n04Z8xq2g7X8jHmWtqFsP",
+	"FMpNwEc6rASqUmRCXor8ZsTiRnQtj7TIy0oFbfNaRpJZdVd0e615ZzXp6Cu6UtXYuJBVQN5mtOXVMNY1",
+	"eOVtwUsEvzFQY5PCoUE+u4HTgfEdrvcJLL6xOi+6rglSyX3Ai8KHifn3N0GonjX7Uq8aZ/kmuCCPPd6p",
+	"d4pTNriMOoyQhKJ9ZwNlDCbyGluWZqW0MuNFH60VKfDtfj+0l8GMzSyRryVbDgoDgCW7u5/t39/eY76M",
+	"T1E4cOBUdhYw5rqf3dRdpTa4m3THz0XCpjfuxSIITIhdsEMxpfgEP7kodFwNpzDjnQWImrMot4tH5Thh",
+	"RoWgmzQ+mNWb4vsVukFgOTn+gv1hj4XO0f5L2P3O/R9/+Ne/3Tm7cWPfLWysaccnbLf7Xg0aeTHizYxE",
+	"2Bn/+rd4roLyCY9UPaomxXr66OQN9/uaUf9RqfWlkzMo9DmWafZk/9e/deFMCuRtF0TUng0DshFImcoX",
+	"h5W1roYyG1KN7oxQvOcZ4PjPcw75Fi3j3HlMFtGN+U2+FFPwmb6QjQhUBCp6z4CPqssFEmlevNrF61yW",
+	"qlyeBxeEjdgYD2G4Eid2NiXKxnC9zsBNeuTYWDs3FEzb0DeiGPSroNlmIzDsAzgnc/FkWIdhUMk2VUKx",
+	"coDqsy2mwhCwkYTNM2g3s7GOA9kATJcKNMOVxLLdOl6Jq9EnonlEHtMV2QB3Iq51zq49E2kGLVzIS6EW",
+	"4D/MIP4tXDOUWlLvsZMmlJtydv1GIelbqNEp6mJoVa8g8s8aVTmQ1wIJRZ9fiP5QT5qc478MjISjKbl2",
+	"DrMwrpsCzW6GYuBAR+cG4J3QqGcAJTjQdfV1TXm+rqPRTZxpolJ9PV4rNieUfuG+XwDoGrnexEuzKujQ",
+	"92ImsC+c3SQmcovnsnmbzAT3EcFrovBEfW8Q4UTbfX0SQw2txOr21S7u6w21aTe4MEi+Xo+ux/jL41Kq",
+	"TI65s8i6xPMc1JPIg454Lpz3JpLA82nlDZSgdd47dlqvzQzZfnBwB6zhRijFYGKEYWaSDSvfULQQ7+/t",
+	"tTvsTFgmbaBapZjHHgdYcXcBAeV0iSqsBqICxv7bv25q6rsVLhH1q2g9Di5WOH6TLMhr0O08etBpuFdW",
+	"ey6sdX9UdmoHKoNa2HKiiNPjCkLMtvVgGwPF50Bqe4qyO7bS4DrqUsXECLS4rOQphxC7reqmas/A0EbA",
+	"0u9//4CsBVnsndte7PPjx0tBaV7fDHpmkihuwWPvs4ef7a/M+Hijy2x9vdGSW27RPgA7EuhtaH6QSvAr",
+	"DsfdHVsgAuciBjfx2vo6JVjAAP5MN6QjmM3XZNNtGChHI7n36zaT05m0wSmbst+y8y77DTvf/fGH60OW",
+	"1uB63Hv3KsQ1pj1VLwf/7v34w/WP/0ior5/tf/rp9h4cmS/nQPNaoLJT56K8+Olv/tNzXoLTbG4TYtYx",
+	"9lDk7QRlIopmUj01F8R3wNL9cUHdy9lvQC8EUSl5e6e1Cz+vd7L2t+ftpAYo01N/5Ak7T1iWsPybQ5Y+",
+	"WKOKby8SFhVL2MU3h5AzXZqaBoZxi0gPCXMY2g66YUZZlLHepNu9L1iX8CGlGhQkSSbsvPbOYZ87t14w",
+	"pZIx2l1lnD7OWM5KCccg6Sn3TLAc9nUh1cUhQ4toKYXPdXsOHVfigsK4KIE8VUA191QuBwN0HcaUR+2E",
+	"XdT7BRaCkbAA4H3Bfst2/Uzsv3yGAONjfSXcxuI//nD97bmbP5hwcT3uG24nNB3ho9YuTr34tvXT3/39",
 	"+Y8/XLchfnhBqb4eDIywVHgKW3BBDX7Zpt1vGjcicTMUMuyPk0HkRrC4p7s702/30iT4i2E0Lo0OkMZH",
-	"gqsZly+qfivZqp2hrWQrHByAcx3D+X2A/8XKKLw+GuDcAzfiNT2h8MQ/812Jfr303cFnf4j6hA+e6El5",
-	"8iz8kpei+nXiOoo/Hl+Pz+LOzj986fr7LtmKQtznRUJuCEOTwtvTCIsfkZ8GsrCiNInHkak81CLVL8WZ",
-	"F9JYlyyEDSYl3hDwIS3QchzaOfjpjXBpX2Ki9KbhfT3UrOTePOct2oforhPuPrq34KZCYBzMjpL+23TG",
-	"R2d37/MbOOn8W1QZ7e591qwzOkHGdFNMhhuE/OQSc/svsKz6tzeJIoI5GI3tgkjxwaQo+gvl6kJnbxb1",
-	"qfAqu7lSpS5WBXAvFc2o5rhvvs75QYU+RlO4MlSEVvUGsuhY6PEmkeXYzsrxuloX9/RmkmhtaaODsufk",
-	"n+igNCy8W9yluJj4kXNVBIyb2YYefFpvqJuss1mCygp4NmO3PDAgUtfv+LYLMCxRqhhJJY0l6rJAtHBy",
-	"3v4yoa8pt/wGuzJMQOMavqd/zl+m08syV5d4Riqv1Ju5LN0OpNKyhBPkSVNHiQZ5el0UaBRs148gpO9v",
-	"FEdIRTcPGqTMczfZKadYskmdvyCmsQnCpz/jzYBFZyZidnAzykw/ghWQP3Md3/gkLjON13EbSE2B2pN6",
-	"/OFcFjeUVhxjFpAmnPHC267hyZX2WL01+B7QwIzO5cVET0wfyqc3RZCNnV/W2NkLsKlT9MwibBKQDdAh",
-	"q/oprm3Jx7rwiTHp60JTAi//6zt45WUw/Fvj2EDrUdVcH3ZPtVxiixhHsHHKwExTk00P0ITTU1FqqHbC",
-	"0olyHlJ974IG8swZopd75yW39yoG1WVhVpo0NV4sUtr2vb0bliHFwByWErWlDelVaJtGaM99JiNvwqUa",
-	"Jv9dVCZCnml0d6jc8cDipc8tlyrAgaYDKYpClM1gnyPBVX/DUATvvtNkkoJvwJIaooUizEhOCAv5aizt",
-	"mYRW82Zo4DiuEWer0prit42ulok7+/44RXh5cMQ9ZNdtoFPIvAGaojk/FyxyhTAZJnV2TSIqML8jltNU",
-	"xzZsRlP/khzulrvZnZRizGkRzqwY3yBTfCG/m+iQAn3MS6EsGXEmYzCO8Frm8YQJng3dDyBzo2cV8pHV",
-	"hSgRP+7Hf4Bwg8xyAt9qACRy7fZHt+nM7yu1unAVb1gBDvV2+0RV3rBHMxsimrS5wUadn2m0ed/o80KM",
-	"GmBanhyzh/sPPmNj+oKRA43pNGRub/ZPo8TU6CBUag+M5TgLFEVIb0QCaLPXwgJs8icakRN4IXMmQRvv",
-	"dqMeDMhKweAecDn2KUXuumBsMNQnULjxulMVCNU8n+5GxcbcDhuH4z5w7PjCCiBy9a+3nbi2/RT4FKsZ",
-	"LLHzowk50BlnD7rdhRliJ6a5nS9fvTph9AFCo9cC0R/UktHtdxuzLVhpm/KSnQ11aZkh7JtASdz+gVoa",
-	"u0oP5r2vXp8+9Xq4qXf/jSvzd/6kVAfI67wRYizKA/fNgdshaWerrghYFQWDb/0YI4CQJR5ktY1z8P2a",
-	"B+SVT/4rLTsvBX/TDNOLcd+ibC4/s+UPGGd/dfbyBTuhQkwqqwlRU+fThKU7iIK5Q7YJhf8I9ysDWu4e",
-	"pT0FZ/P47Cvk/lP6Qrq3B644Hwn3uTNUBFw/YiRXRRvRuFbNbIWPuKHAdNmMmXb8FWv9ut3IPDXh3WEA",
-	"sPvYTsfo46si3s/H7lt2XQlXZc2qadig4PaGctH1TTISXm8lfvxNs/oHlze9PBP2Jm75sTeFz8FeIi0h",
-	"gFXEnD50RFmJKo+urfzGRHkpMwiudKbehngfEuWKNRinSWHDmPDm8Mi0NygrTR8UvZNS3KAw6AbXRMac",
-	"LfyuYaFOfU2boAPHwmZSbWSHcuHogQe6ICObyDEECaHwg5DR4hQdGifpiaAqrcA8ye0ZlUKJG95jWddX",
-	"9D2CtG4/EKnpYFBeImE2hQICi2WDMgKow/ZVKa1IiY7iA3BiSdnVUBZEJXJu+Tk3OG+cpv98imZ1H6/O",
-	"WlgJHC4DoBcPuvddqo9TMPRuH4HIN+sBUzXuRC5seAMjJUzG1668//0Sq6hgc8wiVobnXi42rDXU1o/L",
-	"tFnBL7adiIDxyTmpLy40s9oHnAzkhbNVbpg7yWFrVAu5ElR3HtxiE1yL0NByPAvyDFmw5+K01xvecbws",
-	"JVG5DeCdN1QKk8OBUNmMPn8Tc5DnjOpbBVmV8SyrQvztAha6jl3bwPfqsvHVzLJQh8L3MzWvg8BFrGnG",
-	"iwWOvhOFyX8pzcSSvi7+YrG6ul5yrrG4c/XlS8KOad6JheAGdfpN1AwsX+jLyYuYfDns+diz6xAoHdRF",
-	"qkaNAcKWSROl9wc+gVCHqhAcMrD6/AhVjOYhS4HcDUWRpz3lb5qKvfJYn4mrIWETNZCWApZ0ycxkLEoj",
-	"chcexXtqrWY7fhgeosqlEcUAljqxjeYGN5Mf/Fay5Xu+NkHBFk9qFbqHp3G97tnXoXpcwRnqt9kxlao/",
-	"MUt8+ohYI6GG9VT6akGEMb/oG5FplS/wpRzwkjYEOxdDGVIGSBAcMQLBR1lyYymwoB5tNFFvlL5aAGS8",
-	"VA1TYXfNg3FJyy6EJVMIjrQ1UYifATOewL1FUZ4kT02Ug9gPd3ZC6Yh4ewHtwrVpcLNxsAtw9W1ve25g",
-	"G6/sSVk4Fm63JqY7UJh10eJ824lf4ubjT7aHr3y044ZiAcW3cUe/YTmVNQfs+r//hy7MJCpb4QTK6PS6",
-	"/P3tGOcS/o51jeyff3AHsqf4SE+UhSd5OWWDkjvfPEoDYCkPWHWJAB8M9SesJFNK4mNdizlgjZ6qysBH",
-	"M7GIJqnxzYFL9gkvnp7RRg3JJzyZ6ikPauPNbKEZkP6Ng3mfAUyYk7N4lpUilxbfJ9BZUKkipKjK0ac9",
-	"0+iTVRrwYYrG6BzciTSbgE4I4kdzymq7KPXDzczbFBTYXwg0S2uHCJKDELS2HoTWbCTrGqWCmaXBZwka",
-	"vzGPs9CRSY9j5vKf//NWsvXPPzQ6jCzG4vVHclNFgPMV8QGTzrqtx2uxOEG0X9863yASz9Yatv9Gy1YG",
-	"m/k6H1dIIet8PSmaF86K6+blWLhO190127zu9tdzUrjublVfV3t09lw1naIwaWHd/by4obmhzy9JUwBt",
-	"tBlWODrEfjXzgKqVp2VASG25QIDg9kwmTFI+ZLosqSsLPAtmgY3D/6Ibcnv+3dySnMaGulnM+srC69GZ",
-	"3ivDb5iizdycsJOTwj6+FMreotvSJp6dGW9kEdNyojrk+gjeEc4Dq8Nz9LOgpCEO1D/8jpnwFPUj9DzE",
-	"iTXb8dcA9FgN7bChDDyHeYYjdUmHrOhnQ9C2rc/jh1U8DhVFD1ECO/ZVYuIfcSnB18R42Wxd4LFIoluQ",
-	"QRPeOdnHqfIQ6s6NMG3ISLcCTZokptDT9fvnCZZbl7CsUtlP9+OT/rDb/Wz34cO9B/uf7XcfPtxd5WOx",
-	"IYw+7t3+AucWI75bzsKjqlQAlpBUMImYQhSUdcR4ictZIKH3Ht56Nwl03KULdOhudJRnl2xut8VQ3mF9",
-	"4mmKEPuX+tTVzu2Cm2NS2CdC5B8gEyEuxKacDVHeO0lEuDz2ojHGAnYUHVld7bvV6WbdyG+au3CWx9tw",
-	"qZyqPI6e+HSlTzhalGaKxcbpBSPFxnzp5rH4SOcNhV0Xwpi7LIcJG4fEB5mY1U7Bp024R2tAdLjCkKIR",
-	"0Toab8SNgj1cj9dLdf/If71EdfKilsG0jkSxIi/BzHKFvkUkZ0W6gJluxi78pGkMqYDWvpuhwqNQmH6f",
-	"uireVQ9u4k5/G5P/vpjzEQK+1czN0kzYtkePhZRMoB1NO4vXqnFVJoX4Suqb2TTcFWKW5JA04P8DqUud",
-	"OkmOxIYcuL/s56VTHMO8zxF0NRDh3e09w654CVr3hCBu/CuqgFQ7zdpRL2+uiKawpS5gHjdBxA7yHA4i",
-	"lEuiSW1eLrUxqno5UXA/kSmiibTdJJfVRpBFDnJC2tvLbr0a1YcgDa5qI19TcNos8/HpRGGERdMm9Q0u",
-	"CBexcA9BmVp//XSpGJrnT0RkM3O5LnmcQD70Ebdgu9tKqt/HZ18hebxp1q71PWorD/FNy2yQ50svDBt9",
-	"j+tu87io00kUENVguSZfaw+isYBkzoFtmLAxYF3zWSQ3ct1Y36BcQwVZa1hnrsTK8MTN0oDVUnaFFQzn",
-	"pREvKO5+tT5JleB7OS88UV6C/5C50+fVaviOjUVZgYEn709o1j3MTau2/gRi6x8AN/yOM+ltGvu2HFZ3",
-	"LkXdgtm7KVLUDa7nD0mwY/q7rFQI738f4howsGZ1sXOUDiZ7jWBYqNl9Gupeh1ofowulY3UWk+17Jrw0",
-	"BP864rnoKTQUY2DXzuXujv9kO5Rvd9hj8MkMyQN4qPueqeyUaAQPiStYGtqCADjYIemBU2b50hRlNvNM",
-	"WuI7MDRF5GTGBk2YVIwwhMeynDJueyqN9mNKNtpQzLllQAkXlYIFRU5GUuwjxs5VOUcnqhDGzAMWSlvh",
-	"E9ZD3TbYzFF6szUCuWdux3nCLZQtpzHhxtFjpO/aJNxfpw37+MFmkdPhql1ysVYDWkiSQkjvHd+ImwYP",
-	"x+GOjdLfBoriOdHLqUDXDAeuOLvbs+PkC9OQ7i7iWNdJMJUvUPRH9rIw+2vUt5rhawKXj0a3dDrfM6fR",
-	"3aL15+W0751WGnLFllOg1VaUkWeL9Q4jmFIV3F62XWo9hHm+aRLYtaLVyP/m1oPgqNpgAF961OCbG0Rd",
-	"vn92pWRRKhDFi3D73qvC5OE6xYAHZyIOfk6ol4K3aehR2pSF0t1UKGlTyrCZxoKKKU73c5Pw0mC7IW+q",
-	"huArfA52eYPuST7mUyqW1oriGqZtjOugNAJRxGgar3Z6SIk0dcmUkHZIqrpb2lbzfVpvX71PYos5Fu8G",
-	"NgTk5KTPxmaafQqIZQu5yOh6QdfJkmdvhAUWaerBFuuerYa1nh5/tXN8/BULoQSOAXvY/elv/tPubpf9",
-	"OgE/sx3P2VYBOe1D2pscElOhj6xJPI9HvWFGemMHOmoGwEdkGyWZPcE3tcINIzX2YZUvDd8o3VN6LECb",
-	"WnMIRm/dFgHiwyIWwoq0jd5yhcamtBJJrSWrdYcdYZexqz2123VtUWwSD2XhG146DhLg7TM9GmnFxkh7",
-	"M1LpPj45YnvdbufzbVSo0SE1bWJ4OcbtZUMWITcAmXZ0ABYKojn93KZN7nZ+XA2KJl3tDXYl0TAPsLWI",
-	"UDZRMAyR+11AM4BZWYFT9v4XjQroasetzTjNpAyssZh7G6LzhBHXetJ0xmrs2s3SfjZlUatsHUJ5KeVu",
-	"9NjL8gKt9muZGVEjrkPdF/6CXwr0qkdXXIL4QNSFG8Oy3ARPLnauWe/iJY668c716LGzoZoZIhCWetRZ",
-	"zvm+mgfBea8k/GsyzQvwaV6hn3vIAIZfIW9w8vLsFUrt2K7Z+V7m73aqL02aBCQXj+zSqtY905MiR2f0",
-	"c+EyDyFe8jzuC+DUDAWjSBEHp53X0lAfsnQGeiOEPUxviBDTZD53xFHm6O9P2gaExxkI4bkgecuOMo2p",
-	"cpeSPZdy+PZAbW4dlWZVsso4fuUuHLbowKwuF8cW3J70eOu+XWup9zzjdyoyTUaMeRSfm+QOil0JVxgh",
-	"aR2c956m3IC0yD5oBmtZ3zzpueZ6g6+PXz/HwG6vlHQX2D0zQ44pyoJS+6S1V+gOWpsel+8xoFohFybV",
-	"aselm/md1bVXsUZhPSCiTSCOZk98DHpUd7KbOZkNq792eouYTfpL1LotO5SNyI4bKdqodXMzO8mmJoXZ",
-	"vJV3BmN5lumxqAUtT5Q5qMK9cWoOYIMHU9yBS+vhoEvXNPhjQ6cTZXwoOD2gBk6pfnyE1jBz6tvAZ0fU",
-	"EPS3TjI39jbx/MK44JhtlggemUJc1Q0IEpT9+sYhPUuS9Mf5opscjov1vXVCVUuRUOaiuIExuYuRLbgb",
-	"vQf8/ExQwvzGKOgVsxSn479BcBNSgfmk1SGDf63+zSaXVARLHL3ddViLI3al8IUTyw9Zt+5VMT8LStvN",
-	"EKuTLacr2bB7rtSG3Vu1hAv5ysBPNsdIh7Boz0Qia/TNBjnK57zT/bRU6+dnNxyXpKIJjVS1SoXYKLb8",
-	"69/6maUckq3TvbYLD2XPXj5iv60SViKP8+zlH9hvq5SSgDEKQU19k6eU3ujsUeXoWyEJufT2mLCCtRDX",
-	"04JfZk+hwjT3xlSHytI+xDzUwtg+2g2perPz09/9F0pH6yuHujEilb6ex3xJfKdqSReYHIG8bBy8S0tA",
-	"LFivgmsI+Rt9cDaVFHkbgQDodTXmqEDSU9UsVN3UA+QnXQ8OXcZJEni9dvKAVXMZYQKUE4VxtulIAj/n",
-	"4rYMhheNdClcVFkVxyUKmNe5+auH90P7sHdcg4j8Xvue7lw/0HWv1rDbjqj+6sEX0NJZXnv2DJukhMr1",
-	"N6eu6TOKFjqTF4rbSSk2hxi2QllwUPC35uL8XyVe5Pcwdxda5V1pZiyoKoco1HNM+rAgo5Zvzgz53oNP",
-	"51s7+/Joe+/Bp6w1FNcVXhdXWiEIF4KH6EHUGfRHlReqMQai7vm+4NZbR4RcnHtgxJUcCGMXKPBOSqms",
-	"020kiCuGZqLXr47J5K9hVFbCS+7DtIeTEVcIBUDJdyHmwAz1ldeNNKoT3NVQwdl4tg99vR1CBUo68lwW",
-	"0jYnxhpTdxcnaFiqU4D16Mt82Vt63vCe1rBRAH796nh9kTbU08e5XeAcyUcUlMqV9Sa7gp/fM+RV/me0",
-	"MAAa5v379x9Whgx4fg/TkxoRQLUI84LolFYukbxUrEqKjTo6NL7D89evjg8cDgYUqe0fxqvAfZ6b9mz6",
-	"Wcgm8v3+u236Y6/645X/42Duj9a/f/vH32x/M/e83Zh/BHrfh3E2LhLMRF7yK14sUy75r9RGCuSq1Pl0",
-	"NRst8636nor3XxJyJ9T2c3VQ4u02v2XiWZijWMkcxZylAQt4DKLON8gBYnzZDYRvX2Sl60VU+dJ+v3/o",
-	"y/ohOhunA1mL/jWSuzXziCTLCGE908nK8LSwNX3bVf8bVyDSWt9WworVsdTzUHzAgXxAl6BKoUctz2vk",
-	"llvq695xH8AzaG5SV0T6RB//T+K6kgTLkwaG8koa8mYJW+uD4qvf1gZ77jxfN/bF3iTqia62xXFPy097",
-	"vugF5SvYDIDnJrZhcT3mmNNiojJRWi6Vna7ZHLn9mo2a81qrdbxn/fL9HsospXOFboZ/GVco/Jvks6kh",
-	"9zeoe7wr9EYjD4VAU7DI8IdwK7NLUd+GkxbawNs7+E+ld4AipFsSAQMrGv+aZnIzQVN8s7NEyCOw5ga5",
-	"ffgkFz/uFItzliWqd8FM0jaJhljbwfXNsr6pp2mv1ngdh/UYogwILjJ70ze6smhxTDtK+D64y9dEhXV1",
-	"nvpWtpLw7AwaiX4/o3ob+nyTPOxxyMRGLvG+0dU52UMT68z7DaNuKtq83q0eX3Vz1/qpv4dduIM/8eBd",
-	"5/+uojGsi4DwURT3TCe+Ejbhbubuilty41x0NzQ4BVXE555hvhyLyrHXLlvpTHdvABn5s907t7BHcLKq",
-	"0+4yyGEWjrAzpGGtOYqAqdbbnei2m83ieFe3X+xYeFd34fq7Pb6gVs5A7cJatWtrWXJ4gjoowXNg+V7j",
-	"jfrmBnvVX4Frut3B13dEWMKdu3QeyMHusMoQ4BJJzLZya87iSy/46KQ3XQKvHB7gDDJEKQSz4tpG6WwO",
-	"HaKnLXUBrjglz6wogVJRSmt+nrBCKufsBouNuMz8QrBS2EmpZvILBxfbBQmGv+31rrvdbfjv5/CfL+A/",
-	"x/Cfx/Bw90mvd/3ZkwUZkl+BcHHDKOYbSAA3AQhYYI6LPojEJGkInZdZHSLbcVsp5lLqVVA669tcF6rB",
-	"TabHm+jj4POmBrBPzeM0IiuF7bCzob5SDI1wWmXikEnLMq6c3yeC7qOP85qeVNRi4kFC3UBWZjDG/XJD",
-	"Bgj81/toJSt1sYA81BLr0vVeyAyGOtQyEwg+bQxCDdOCg9s7mA0xwKTyg6FzFbu+sJZXO+zv7SF7ACRH",
-	"2naHPQ3g5eiPS8Vgfh1sBi+Fs2z5Ks6nZH/Vk3JbTIWhXD7zoadGWMNo4EYUgz61ssgzf6MdLx0oFOZP",
-	"gI7i6N1mzxnFJrSqMuxcYrKgdocFGo8fu2qQYYomEBUOkhJ+4KrADRCdIHgXZrR73zWMKp2op/cMaoaw",
-	"S/vd/cVflRPFdElz32HPBL8U1Z0wc3hZCzuUuEVLfCbMdud9w3rv722arLkiDrfAsUFWel2yK8yeBvtt",
-	"YkRF3A7R+qe8yzS5szttHZ/k0jJbclngDayvlGhOez+qKmSQZUddwEY6YClZnFx+J9RO+wRP4ExeLdZ8",
-	"BqhOTz0iy/zBTEL9mg7L7wXadWm119Keov7wAi1uonDDpi45XCq/68yEvMN7au6eTG6PQt9e/u46hW0k",
-	"qqVQt6nYP+dGFC6vxFKcMGj3C//xDXGT6sAQ8+oydJBZE/LqGX0cO0Y15BW0mkG6N8w8KYnU5eTbJA2z",
-	"MCZIXxR5HDE/IYmn7Z78c+JB25uxAyHV2VoTfBK+9gnd1t+OVAGUaeqHLScq85zbzH1RTkSlo7+SKtdX",
-	"DIPkRpTngiu2m3S7XT8jQKBB7MPvdZELY90HiDEBc9x8bV16qLdNsDdihLiVUeE1NIKghqsWIcxqtPPD",
-	"xqt1MJ6yyD1smQdx/Yy8B5rdeyHTjWCybxZYsMB5zzRsmjMX2ekNN7m4lDhzrKXYT3/392x3UcKvcMJu",
-	"GGlmRCEWBMb73M++hXCEBYZvaiPWYHlx/nDQMCExJF7c9sL1P4kPvHNCg8YKjR4HiwLXwhZl3NElCuI0",
-	"MQqbrwTWpgQJccadLNkq++a7CadURYVe18Gs3vEz10r96dOozfqbyKts7tVZ6E39xTNNLmgR0foAwESb",
-	"onkLoPjNRLPm4jYp/CYLJQhpVxofYjkIuJA+CVFMTUeSIqLxY9NexPT349t6/oOboVEt1r+EPXnPeP1L",
-	"UzAppStRAm5SlyJpIG0CRz1s1JuGlW6KlTV7xzRnUjUevjR863FCozVbW0CYweBcHtMcxR/Vwo28iSjk",
-	"gatwvapdWN8DtbE20SPcxvHhmExkPu8exrcHR9tPvvn+83fb8c/9TX7u7r1r1Bm9bowWO2IYL4a+u5nO",
-	"Q4re0cXOMwgDm7h//zgej75JZ3RcTu5aoOH6f23/v7/5fje5v6A/X/FScpUJyFNYbJowEzMp7u6Yb/dS",
-	"coC+dLWxwURlsT998Jg4e3TAQGnI0rG+EmWa9JRpXbchbrj74w8jft26Tth1fyRV+9tslwRr/InVmBEv",
-	"ipoDNsXs9lTN8eDQNQG7gpfglcxajriAigJU9ju7nW6n246bZ79h2e6PP1w3gg2sm58k213zwwVhITPH",
-	"wwPOQzKTbLdxU39VUYSZzBIIQOywKNQ0gvkinAlHmpyDycJ46Pi+HXNjMJmKXNfy6Xp3QgXdrydYnvoe",
-	"wiw+xH23GF/gJv5c7xviv1YOycXxRlV+wuZ8zb9+hCEU3R9/aA1Q/wNcqIuQaO+4P254DWGFTTB8jUmh",
-	"l12TrNTaRiDQRCdu2K3N85KsuETD7lzDtwVkpuaVgGv27a8fvSVtZqUC9ZncnMLTw7Ou6QKyLH5sdYTY",
-	"yrm8tUDzCoN7jmN0WSNx6ioAHUzIZhxGxVoK+YiLcBRztUOa38Tz4W71cxWvbBQj5w5mBBVe51/W9EuJ",
-	"99iHA8R1Ot+QfadRcBzBpeG+9GHxM/Hz5wJTocCtSl51DQbESG6+nCH36x6+uUWvVTQ/nBVqiblzPX91",
-	"SiWthAh7wIEiRJBMKyvVRKqLlLWO4WnsHxD3KL4xXUW0E1359a/OUOXTUE1tw0RVzozrBr5CN9lI8bDX",
-	"19TU13aFhFBvYoOlvRWA3wUwEkHNc8WBfHMz2QzSfjli0QsXxlj7LGFkMWDd4GZcYUqA5HBTRMMFqd+6",
-	"S5jWG9+aH9Q9eZ07wHsoRqvetK++xoDKY65ymftEYhvsqfxSGrEA0QfHIXyoZjbU2izCHyON3dJqXGQr",
-	"mxixQOc84tcu+pKiRCEop1yg8Ch4eSGMZfhJZY+yvHAhphithbUxwlCbqByVQNKwzM9WzP451DClbSRe",
-	"3EQzq61oTkbMq4axKfNGjsck59DljbmID5kYje00dqNvMoBNRn1+bvpN8/Mv//Xtr08fv/WzAnzudpUK",
-	"PVAIM8f8NvXuhrMQIo1XHZKvw4ezh6Sqojbchfsk7MIkbGu3GovPTWPI/TPBjd0m7axx28l0QJ9w/W23",
-	"8yBlP/3N/wa/pt/upe51LdgCmGjeU6hGIAZkFloHdYtO79A6KkZC5pwJy3jRSdhfdXrqeFjqEbf6ouyw",
-	"L9hnn+2z1l63u9dme7sP2h2v2vB9gwZ3d0Bd8OM/kjs35EOf03hE6oxrUGHQNmc8K7UxdFYMs5oV+qKF",
-	"v3rq7FE7YOzB49ow2onLVwbjpfIQP3ml2NmjQxcEyXuq2lZ64IkJ2qRw41FQbNCauBPLY38LADJPw27o",
-	"a1wn05kNB3ezbzq+EUexKD4+2tw+4DPobMxkBH3j5+hQLZh3/maiLHXp0dt7auFJYnyk0VSpjWBSOdAk",
-	"pWsEaKRLAcHxXLEhLwZNRKvDHuN0kBhKIAroaVKdTcOkCtPRrx4Dmlxh9FwEz0BeY2SJqYL/AbQAN2df",
-	"D/ojwVXKWrAApJRiI1C4GfIWPWBf8bI1hW3zr3/74z/++MPb/+uHt9+29v7ln9oJ+5d/omlBWwcMp1C0",
-	"bxhsG61YoeDzKsO6Z0thTmEVeqpav4RJK0qcVnjFOPOQA6wUcG9E2Hh+Yv7lnwhBb6ivPPkWxsoR1iIV",
-	"S5VWNKi03WFPMCv37DDdUeopf5bwJFc9hc0tLW1rv8XPHtWxBBTFkjr6QH+533v47zQ8n7rf9Nzgvw6K",
-	"oLYka3LigYq9oC6E30/V5dl3pf3rmWdzv/caCv27mWdzv+cK1R445IPw+wTG9XLwHEcVU96X48Ccb4Qc",
-	"5KlCtaOZowmJIydeXB/IomiCACW52QDawhrBth4/5F2yVac5TTbYWRNlvUBSa3rpveRm5yZIxMumCPy9",
-	"BlIUeeWgW7n7unm70wmbcbUVCFviaXfzdaCEyMkHzl98VrNzsehyaXHlneCI+vlSSltXEiDcLkQOWnb8",
-	"mHpRBxJhaTTqA0Z101whWwUfIzGgLB0d5ryl2P0DxuEOdJFVV7qqEi42rQTLxUUpoM9QVogcknzAAjx8",
-	"wH7NSgTNNGOuDAyBPMLwfoLV+qzbDk5SlZwUiUd7SdOmnN9oIdr/ZuLoZkHcdxOLvbTk6shsV/P8MUTf",
-	"hWxSSjs9g5HQiM8FL0V5NLHD+X2cwmNdyj8jZ3TAvsBvSTDO0MfNe9UxdEYzBzVXuYSlTlWEAG9gfEpr",
-	"fq7wBbpHpofMCEG3FGXUkRp88NLrbT/abXJKc4A3uBQoaWGXKmFiaO146907NFcP9PyQsH1wyRIlYSmb",
-	"Wqb3iULGqODnunTGm0jrFFijBNhM01O89nout1VCph9K6OIYzpgDZDzLxNhylQngrAuZTSmpjBEwS166",
-	"TIjZxqoSNi60NYlDA45Reg2evIl6o/QV3Bp/OPLZX6FKrmqOlz3VU598QowZLZIHz+WWuNzOJ5+wo9A/",
-	"Jg3zqfzjsaApcCAvJqXIWQbLXkruATZ5GXCQDINjqYh6jCfnhTRDkbOLicw5uohjXdW80+TA2KxTxxBy",
-	"6AVwqc5vGJ44hvDs5QlSsZ4alyITucA6vTZVCZH7uUC2/juXFDj3bpsueY9TtxKWfU/RgrosP26WKxmn",
-	"FGPBvX8zMGZeVZbi7P7qV+xYq0uh8FlPbRMSEF1TLgS9FMwo/kb0M2z1lfRPA5BLKyU59YAFDVcKBJ4x",
-	"XlzhgpXS2gDTQmymuOaZLabMyOuQoYMXLJcXuGsZa6V73b1Pt7v3t7t7r7qfH3S7B91uh3RS/z5tH7AT",
-	"bexFKc7+8MyfkpEEiQqBY0zCjIZq6F7DD3IHImMq1JgByOHOvzs3KLGHnnG8BGRhRdmBqamUUXj+fJVD",
-	"vF9acCy9P2RCzrUAbV8KBvYlRrTRdNipJq942OvjsVD5NopkHngRHERoS8ApowzneGZYSEpNtZLET4Yj",
-	"d90Ylso83QGM/JT8zaFIzi0/J/28HhtMEcXY3rcP7rNttguz5KYoK6RQNmF/xS/5GVIjJhUhpCVueuxQ",
-	"jPz04JRA0iXYJkhQZC74AXiNUOIKzsjxXRqW4k2ahiQIDmKqwoqHLsF3lYXEf2w0nB5go2K1qqu0ynPl",
-	"q1ZuySHjBg/+7IGuYIIo/O20onBoOc4qlWqzIa5K1SVuUxzqC5xv2vkDqWBkTx8/frz92YN9RtoZ06HT",
-	"46JIMl6WU/aCv0BIYYVlpod4KpzDEy5RrgXpvsS1NNhrMsXjy5rt3ZO2BNgvVtcuUVoD74Rbam3b2HtQ",
-	"F6VeW8CZEcpKJQockeM+GN29PvqAOeJMRMCwVtrEmhwwZE1S4IgYOw3gF64qmCSXU4EDK1wUuNFQ6ia5",
-	"H+YvI6Qf9ETA1vwux6ulhN7mxm9kaViuM7oCw5zRvXkuDt3uNcwM9YQqoggTeaF0Kfxg7FBMWa6xLIwy",
-	"cWk3Cm5FyRx0vWE8z10JWnokhHoQ3cIm8fenSRx9N4nX5ODt6NNklAJ3UkU7Dtgus5p9us+Ozo6fPmWF",
-	"sFaUJnGkD0unHWA7+vCfA/jPdprQkHiJIoUT1Kko7C8sy1rE/bG0IlUgf79WEmGnoWYXSAe1RbF0vAz4",
-	"9f5eAGuR6akjVkhj3W7kil2U+irsNIohaaW/exzj7UOH/RN3u6VtzCqH64oKAki6D3MIK6QYZdKaHsBk",
-	"l7QrD5wQkLIWfMuM/LM4JOYLO4TGxprs5FLmIGvexmMGE+lT/rccpsKl1BODzQPrFiXtT2vxbcTVlAaJ",
-	"JXzdTiL1FUZd4MVgfPQIfoxfHtIo6ES4AA4rRiapN1ct1gtxbY/pYZs6PeSmP9IlBHKw6rsvuXkOD9sd",
-	"9nshxn6mwn5wY/1trZWroSxwB1aVMnTrnwjI7YJzSbtJMfT0T6OFbNMRxOJRrQeovgZdIs6/y1dzIQ49",
-	"KW2ltbV3bADuYHekUaFkYKI1G+uiIJ4L2sATd+RfS8P0mH8H3qGV9296wi+En7FD3D126LaXzATLJdJM",
-	"ouBmIjD1Df5F0imFS7kFxJQ3+90u7nvc9LStg0uGLH2uxBZ3KMko4c5kEYLd7L03ZjMHIW9bMbZJxGCb",
-	"NtB1zBVfiCScLDwf2KU/TOByDoOHyirxI6aEWQGnODrJtK773S5c0ZjPiGLY0u+gyvmwo6BVJpoZKAEI",
-	"WEJZNxqibijn9BTx5rDaKSv1xAqnMdhAKDtygUgYtCtQSO8pDzBK7RxAR97SD/YWl/AtMReGvXWsydue",
-	"eru9vV37PxSKZT32thbz95YRz0bE3xHspI7zWymaffanNtRCeNkV6WeurViSZG/Zs6fPz4g5K91OeFuT",
-	"hVpKE29DXFA7dMmzkU6OivaOSeIaEtftag/akBAEj2ISOVcBu6vLTEQX1nxa1MSBz0iFIMKeVaPx1QVj",
-	"9hbEN2P5YIDLAA+hzgB9l1Rc1sy8mgQqrngXs87IWWssXESjE0B5mQ1Bl7R6Fm46YpL82dt6IC10F5lm",
-	"XD3o7MSsaALlARLTMKq9VgM01lOYm6zUhXBb2ou5PLNwLA6YZ2hFWfHjMG0BM8jt4Z6Slv1pkl8IVDri",
-	"LqwVSGquZtEch5rcJEjbUzDJ8hKrUjU9RKjRHwIX4YsKww47oXG2SHoFkGOQROiG89PhIqGA0vqpBmmo",
-	"ogo+SjU+uD3lYKdDgJUsSStSBSmz1rLo2HYnzHdFSguk/TiNSHWI54Fe4So4/wpxbYWCHd1TDYqfg7k4",
-	"6k8+Ae5WK/HJJ87uNELrXD4iU7cfN/JH0AWRhyBtstSVRJOty7RkAicNX3uVRyGswBy+PfVyLNTRyVPm",
-	"9WgeY87Hj3JHr6uRg6BQqdgO2B+/gdRGvp77nS45KRpHgWmicO5hgl9CoT2ceyjy9BGoFJTIrPM/wNk+",
-	"8uEbCRvxAtQFcCq9qIFW2UsNieNCLPR+d/eQJCWZRyHVegJb0s8UdQi/vt9h6c5Q8MIO/wwc6A5srCn9",
-	"ORK2lJlxuVJ29FgoPpadKR8VaU+h5kVpHwud+onDiWj7W/AxWiT9lYf2SVxIhXqQh/sPPmPjUp8XYgQi",
-	"05gU71KrHff0N38ymL+FuLmeSk/ouTeQSUVDlWB2SFiKLZjUaWFI6zgYCIw5J+EE2WVOMue5zp0MBWcJ",
-	"evTpw+4uvcPQITwBDloXPqZwAuTsQnJrs7O3U083w1ppb6u3lXpUXeRSsHz7kFo/PvuKZaIo8AjvFFIJ",
-	"s+M4C/xHuF8ZZK70tz6wwilWuLsNqomcjYdTg0jUUAMy69C1oeC5wGnGx7ttHwThGvpsx/PZqetOxSRC",
-	"f6hpH3g9z/H46oghInkjYemY2+GBzEnmSqkTB09zMRprK1Q23f69mKJEQR4tTjwfSUOpO8kAEk89VkTq",
-	"Rmm8l0lJ4pxxzPuO22rP/fFgZqosv07YVYkm7unYBUI5eSAKzOGlAD7vkDaPhxoAy2pRbLvazkFeKwV/",
-	"YxgneAWfGt1xzS2uQtrsyIztOcyegjOXEHgAHVv6AvjeUiDDKas5Ym/EFFUQ+3t7QM4fdLukvAW60VO9",
-	"kD+MjlJvK1w9qZNr+jJPD531emIEu4COWB0rCAoNW/iFY6Kk1yZVaiasKEJWILrvFcqks/CMZ/rX204j",
-	"sv0UokM4i6dPK4Hak+CnjfoGpNpvMHbLq1PR37TQFz10xQQB2znKogZht7Pb6bIWLoRUF4Rtg1WxXIwF",
-	"ih1aOQo9FbaNh3xOnCaxEgXjSCxCXUZKEaRXQfRFBHStKl0oFMuRgnbYrOjOuDJXqEkM4iIKZLcghaAs",
-	"iwoYjAJ0QkYbq6cl8drZjdXFYMJDesFzjLJDgY8S5yqpBLURlIvn02qOSDHptbeBf5zhVZewdm2v0YtK",
-	"3CO1IWv5DUgKZtpv7ajtSn/pFHIG09HmdM5RlPY5OuiQR5Kp1+CyFqpCcnLIYEwoZPJDQIFX/7pJAItT",
-	"p5CZAKIJXTkaAy+1vdfphuSBpcBWycLx7Onx4xdnj10HUUk+JS61hYTP7eQDEtgycOxxCiXP40B6id89",
-	"fgWdwz08UZSSMaUvzKzc5PU2kahxGHhMp0/zXKPT7gMbcBhY4RXSgJ+p+cWkDs03zhfxylDNnOTgKqkN",
-	"iiyCbt7B4kcoJ1vV7G8lW5OycNZBc7Czc3V11eH4uqPLix1X1uy4BcEyiCxvC1E3GlJkpHHZ6ju79KHj",
-	"erYOtu53up37FOM4RPuq55vg7wvRFIzoqMIe4BeARsnJTDoTxiAbVEjAmXmB0r/npTqUR4aIxNN862Dr",
-	"d8J+6Zqacefd63ajtBnwZ8xD/cnZoenqW2X7pibIwjozDuwmzMaDbndRNaFflH9S8QJ5v5pxeuvgj9+g",
-	"c+SIl1PwXJSXQgkMaLOYrPSP1cjN1jdQ1HOhCyf5pERbh5gYgkAT1/7wM7Kvzc7vIX0imLTEjmsFpgEl",
-	"7JUu3+ASUSd0iRo/40Be5tbkuevZyjWBfu2MCy5nVmPWAWBu4l0LdzH10bSNwjgWLkLM+y9cCfBz9uJP",
-	"MDpEfAeYos4nEugJ+p+sse1ddZtte9/JDSY67jpIbr77Cft3R8+f3cX8v4pNM8umngSyNWmMULXbK/Al",
-	"3qbumGAZcuYk7EH3fk9Vztuzq8LSkc7pzkuhK2h3TSNyFtqS6DWB1wMaV0PC9wOn9OCl2wq593vzIGnU",
-	"SexJKz0VtpxuY67ptM0mysqiihSBmg2Q0JFGmx6JBxFD3lNKW5kJ4xwhRTHoQM9xe5g00lfgZehfJEyC",
-	"cXmaOEdPUo8U/GLB2T+lVblDcnyKPljCmKb9is0zq2k+b7w/odT91aXOaGpfK37JJfnRL9vaVc+XbOvL",
-	"3R3kChZu7E8+Qcejg08+mdOggmMd6X9QfjiCelipQY2qyDMO7UoJ45aNtLGVUQxcz8AfnbRrKSPUFZD5",
-	"UGvlfUZymR9ghS6Zk2fx3GtkTJ1DAm1kUs6r6Btw1MGNF5LCOBbNPZG5bx2FJHraUy0SrV1+bX9sZd6O",
-	"XUiAva/n+9ElG0glyqbdeoYKX5ykGLDIIEgcXElbKMh7FMaDLRrBVrLmRnU+c++S5trqaXGqKiPnuE/3",
-	"G5zhltYm80V17XW7a1eGu2K2okYfxYbM1oCbd2eHH1frmV54V5UI3/Mu2dpf59R/wXPvM4lFdlcXea24",
-	"s0WJnAqtQSee6PJc5rlAD8r9vYerS7zS+jlXU9c78zPRsUC56KjMQhnCTRKdfBDkcBdG5I2sE+CZOafd",
-	"Dtgs89lvPSGk12tRwrrX5SrKSAlxZ4giplQRznoQCdPoFuI0pU6rpNj5tKfAPSp62WFPnBE/06NzqVyE",
-	"ytGLR4csBc4OmQWpXPwkUT2rU5c6Ep4lBJSqVb0HHQYmauPwqSptfRac7VjLCAF6MPKz2PL2hWjCSEEX",
-	"MVftAwxXYw2uDD1Vdy7gpnJ9aPRbOCTwJVFZ73uq7iJAaEw45lrVYPvvVBZ69PXCJpD16inXQGVWn6Pj",
-	"MGRa0PXIeA2xbj2yEweOLiKaFfbd7dUZUpXfXpUB7Wi9KmvQVYvqrICT1qs0YEdBhfUz/ZiXhRTG1g9A",
-	"Uh0bxIhq6AMcsFoH1omTnm8fsoTPty6uV7Ru9S20feI9kxa1Mn8vB7S7B90okGBv5R2dNC9QdXp2KqeY",
-	"rTu90XGDwRFuutLBIRTV0gH3+ePlfuuX+zFh5UgDKtro7na376K7e71E9vWrHBW1d3CfY3g6GWsG0gJk",
-	"OCpVgve+VpmIPO6EupDO1TinMEx60nd6zpRCEqRxHkyl8DUtkHpxCudvnxVHDEs9ffQBztcidpnwvH/h",
-	"R6q7v7rEC22fINbOX+gZPKKloC0qraEYGBdKgymIPV7uXZ/OG2sfZkOfZs+ot5O6HHnkVU+hcJVTmRfs",
-	"0avI4Rwje+68UWLpQ5o45GHZyVwg4/8SjucqgRanyXw8or+AIxptPfR7yhzR9yfSHa51Zd2ZE7rkRFZu",
-	"jzCMsTbvpRUkDDDDOIi/NIiEQvNDzH7kr+ER4wJ2gi7lBUIHed9iO/Q3aZW5v5CKvK+YRBeH1FfT1wPw",
-	"rbGYwdRVFK5ZjwCGRlcL3h1Seb6kw05d7TPdwMnJCcRhGn6BRImw4z7szEUgt4SjQlhXTyGqB6JvaSWC",
-	"OtwKUImSLxFCIaE04IxnqCZoO3oUpsc536Rj0gX0g7GXGnQ2ZI9Vim7fTmDsqQthDfNxWiHSUNokOLH4",
-	"0Vbu4ajvhCVA1HhuespMxqI0AgePqjDfNbDimtlqam7Jbo4PwE7hMDtr7yn2BVvThff79P1wghLjAytK",
-	"dPEk0wRH7QJGrCsRoLXZS49i7wwtjvDTiRpyqTAu5Nz1H7z/97sPk55CH6PUwfCZvivtvJxOEWG4tb+3",
-	"l5Bv2zklWPEcXuX/Fi5YqO8whGr2FHX/6fGX7PluF1Ba9vbaiU85X0VoQtSlAw+UpfEONejA1He7Kj2g",
-	"PtCOwzgsusPxadhiGIyghAeWcYUNep6lbh+bfghY6ytxBQ6hlhWCG68cxzIu3sudA17A4ynVAxA7/k3f",
-	"O7qkB8EAsAdx6npQ2ZF4WZ1j9P/w1cIpKOAA1Qfhu5DpibKGubB4X1Xb9UK61HWmD95N8TBqscHRhylN",
-	"H4VuulUCb53EL1Eb9zXjvgfUEqjP+hh33xcqN30lRO6S4KcHbjDQ3RoZgAmAgsz5CQKCpnOzge4N5cUQ",
-	"ftN6Kl6iiQPeYEMwFiwNDR6itxxU4iIXqC+uBwnGzGFWPYdv6L1or4ZTiim6EEqUHAOqUleq8ofCSW43",
-	"cTpE1B/7i+I9eR28cL/Q+fTW2JzQs8Cc1MP6XbKeGTZr98NIQTEqKrlnYvvPdLYAPe+E26E/Nb5wwtKZ",
-	"extRtOtDTJbZ3v8HY/G6a7B4x1oNCociv7+7Rp9O+LTQPH+l9TNeXggq92CdCYBskbq0In8ucslfTSmP",
-	"0P7e3jqFnWsScIWPlQXT7l8oE/uYyHmMeKUcMFPCuGcK/Z6OmNvvsvcz4hAnC2E4nbG6WEu8vIEKCGPH",
-	"C23RYIGNmcuL1I3s5MXvmBzxC7FMVDwptD158bu7FBaxDztuFhp0xudScVLEreOdg6P8KB7+7CcLNk4k",
-	"FyaMdtGdq2v8Lr+DI3VWRSsGNjAgII14+QaD5RxiS0ivknicxIHMBcK8nHOVkyyDQg5mrmFjrkSBKe6u",
-	"SF7BYxHc5zk5LaI7ak9RxKmvP0DNROFjULszQ6063mdffYDjbS4vfnN9I3e7jwf6F3qgz776MAe6isdd",
-	"T92zVOv6dA4zCcZEwQzgy1MhS0RgTW7AKOqR2x+vpEOKVaPTXJ1yyjt0yQvGLUur52klvaF05WW9dofN",
-	"Bdp02Ek1dgL9mIVf4mrqMYowLGnoUHVsgvGtLrYRKgSLNUyGIwqHteQPPeUAH0BwI9KUApScSSGqyAf8",
-	"EKxKgWHkE2tkLmrolyLvKZIAdUmEjHHS03dYrM8nEBWEvqxArVw7GNTUU/vdh4ulumhSfnFyXdW3jQS7",
-	"7p10gJpYZEd26rVxCM5PyBfXodaUuSg7Wx9lsI8y2J3b2+OYWPSV9QB2seNcdOjXvGOW3Ck1dITbMCKc",
-	"gsRoIsMdQWQG3bYzxgduEXVblYUePMwqqwaFPC42PThIYMdkEv67U86BXlgp1OihBZ9oOawLL4VHIaVA",
-	"5qCvgS14ANhmhEJSQGCuw+ipErMY5y7gNHtQdwXo1Hp69nLn6eNjtvtZd+9BT/343z7r7O529sgqwPJS",
-	"DizReReGabx7nNO0e/C9CHEBYz+J+82r2aymjLVckDrB7uF3EOx9Bl+genBIkNBzt8hpWHzxC/ZTOK1t",
-	"0UX+Criw0oCu7iOH/HMTsmhjeS6Zdi5xYEQB+FWgArfsFxxImy7zzjgf3IHPwqsAUkDNRPKA0yk9euIA",
-	"X1BaUDPgXQee4XVqNq8qrgTXJMTUJZFSDiOdkSh4wTshnHOsp8KCDiSzwo+/x0ymCS3nuwnhiPaUg2RE",
-	"ioRljOVWGiuzhDhWrJfyTLknpBmEyD80lCKjuwjNKAlSBFYeTIMqZHPyDLcPcAqoPqyl+EgkLlibIrS9",
-	"4aXg5/cM+7NWIoF55EDnncKhBn9l9MBeYYiwymdpNX3uKFRPnX15tA1YxU5+ASVGSF9I0kgwQqM9sGao",
-	"RrjHZdqFU9wkJ4+efCgS63b9eysR3SH6SFN/dpr6qgYeFUMtv29sxSbcIha5BTbxucZ0y/HdMOshwaxm",
-	"AHBT6kvhCLBP15wSCaSBGxfPkDkSSsbRQFcRxkqqWeLQYUdYNdIw3w+XiZgUAxjASXlMyWTLK8MrOBQE",
-	"EV4D8gM7qqkfKLt6odWFKOdHhiELDyugLXgwwJSYwEDbSaliDpoj4pXSV0RXTTMrB/XcBhd3+6oA6tvP",
-	"pAZYaN+lXon8o2j/UbT/AD6CRMdYyDn//m6CS+h0BY14Z+66EZ925fJMKKaVMMxq3a68qUZcyYEw1gF0",
-	"4g0mCPM96SmMywUGr87Z4SNk75jj7g6J6YwS/XuklMDBkS+aTyzl+DmixlfcxyUvDRM7q6btFykJh/4t",
-	"iopBU3cYxEeu7RcQHxtWo9k1+HZYteS9+bEjxTC0vtRKZtUeOoiD+CGZgWGYZQVPo8+zQjYYBPyfkeE6",
-	"LPXteV6twha9Z6oPDz2nxwEoEdOc0W9hKpIZ80QtbtjJy7NXzPGkTsEGFYqSBWfUIB2CfyxiSfnWodrv",
-	"+LZrpXRgevQ2mX+jesp3kJBFRxNjPWB+NEfEQRLCI6yJyIMqz8Wwko9z0HE631RCJdh2tYQxHTlQPj/V",
-	"CRiSdPYGc0r2VC7xaswZz9AD0CFUHrp0HKAf5LLA3QeliAemTxtxD+SF+mWykOEY/UxegqH9lVT3Izv5",
-	"kZ38MNfK+98mSzjIueTat+xBRExk3EoVANbgcIDICzZdxL19NZOn+xfIu80lSF9ASGoT/5GD+/mP2lfN",
-	"MP2N3NwSX9g13X7W4eTqWeUWnzP2NEpCANXW00VEg3Ey0zm32ZDwb4ExiRtqHwYM/p4a8WkweyhRJUs6",
-	"n7Ihx9we9U65UJyA4+4bpjRYwaTpODvg2DDXY1gkSCykgdspMKdYu27KldanJalBSh8ENLWe2u12f/xh",
-	"ALtwR7n89lDFrx8xfNPCV+ynv/t75l63/XcYMQ7cF5gwhgLyQ/z60Vv203/8X2YCVKrsdZ14kvtWF6KE",
-	"x/1xBoARyCD2lHd9+vEf9rrs1z4Iir0+Y49PjtjZ19uf73/KnmPt7PNut/so1vjW1/FwPhaJuoVpeUuZ",
-	"4xwlPoK2p2q55PCxj13yEbVHFWoxTq3SrNTBjOUVncBbUu6Qo8bgsHpYmJfX66CpIUqsp7iFzUvWFSD2",
-	"bDZarFa5Lp1LeqRBRkzKK2C2D2eCzJyxybgEznOhaXTndNiRitwPmgLlauTZew5QF6SlAsL0FOEPE08O",
-	"8gPFcdGIQT9C0kpcWdJT8BH3yGy4Lj4YCTvvDFDo/gZjsiVXhuK2vOdFjIP80GVjcfJH4SB2POY4KZ9J",
-	"nU4DACRB/KOvtO37d5CtxavHq0BCOOpxcrMwVVUlcSheVcWM25v7FvCABhJi9gDG+wCTm8eLHTlF+G0U",
-	"BV5Cm7Uzh6vajw4MgvNziglc4EsXk/lfnPgTd+5nkoDiLtCM5euwMCFuX08sUJiP4tFH8eiD+J+gXqrZ",
-	"K6FKsbQm6xbYoNX+2lH6mJ3vqx/vvHDlSOIdhTlFBkg86RRpj5nh6gERPv8Ct3TVelfsnlL6qn3A+Ei7",
-	"m4MajW5MS07NSJCxLDVXhrjtnkLA9jUuC2Lk4GN/25BTBqHv9ZS3pHojMMLt40PkyPIoFTCN6orTRQsT",
-	"RN4byPA4dsiIOA6fBtaXqo849pghTKFm0Eyy4eyNZ7xuUxe5KJlWosO+9uDBtfohsJpuNX4h+kM9KV0+",
-	"mIhzksbVY4dcuQmklQBOV+EHPotWh0GGIZePGAPkS4EugZSAQCpwxcnNMu+Tp+oJ1LTxtVbJD1urse0W",
-	"x7NuAkw3f5uMNHlD+SzAh2gJx8WlPIqLMNG43Rx57c7xlvxSLINdqpb+o/j/i3C7qa8KHFXutuWtyv6r",
-	"rpDbjf85MiwlC8riMKM0IcEoVsZV8zAAE0TD5ZI6opDOXS9wdDG7fU+FhDBr3php2+Uj49almgsJtdCj",
-	"J3vju5ebxgiiF3q2/2gs2e+p4CtJ3j2LZYSKHr5P5E1MVe9IXmjq6McwnI/Sw0fpYR2S/4cJB55kuoT2",
-	"3Wo8jks5tJ5MUNP9bi4hFIRiG4N3EV/rc6ydT9E3Z5Gl5bnr6x1SDGpimY3ETdhHxNfbd1MriijLfH2v",
-	"xFEa7pv1ROZbNH3E/Atqf2GvsswB14VdvdthJ5oylqPgKelv/NglIZ/2VBXTVQWnzJ4PXzWJpdfRm9Ze",
-	"dxdQrATiUpfhBYYYT5NIf0ukI3ZWnglg6ykXwQZ9q7ruU9HZ+XNb+b0Rkeop31Gf6Zmj+zO5EoOmdQ/T",
-	"eLwalsKQTr4QA8vQfXnQU5H5ImWQXTJCw70XMt+bOHtMsBCYob7CIRQFBqGBFp20Cw5hrxRsoiTkVofx",
-	"SQXcM0nM4PuyRCf73IOc3wWPRJX/TFyRG1kDfXvqgw+95mZm5Q/DCiOOMWlikRLeprZ3cf/o2Ln10+X7",
-	"QWT5SyeNrsGd72Hb/I+GkfWRz/sFhlvj4QnUKKlsijF7pJXY4OJrZu3cnv45ODynMyWTIaFexrCr6eJM",
-	"fUR6m9JmgA2x0rPhP3ej/ztiZiwy0OBH9C8iimtoASPEsoakRXu7+5/tf37/0/3PfsbURYuJbcXsflQF",
-	"/vz04qXyq3HHnLAjHs6bbx2iMedZ57x8ExZchH1sBmtRvciXEbxyLgphKUVyo9B3Qh25Sy2RKM1yvzjq",
-	"9EeR79Z3NUy6m931PUlvLLN5N3kUwrxYgCEFCeNsMCmKWogQa2GawSqmBaWNNqA+68KlqedVIELLYQtw",
-	"eMOOygut9mTOhtwMMXHtElnjxKfwuxMwJKz8Z/LccCNbcK58OMDWRwb6IwO96YU4FgoOmttDm5OP2kW3",
-	"8z3SgXc77spaz8Y1w/06+pJxFcVfA/lgEn0G4c+Ani9LitQhHUVJ/nMdqsiNqVLjOIOS9QlOQcvTRE4e",
-	"Ue8DPVnNQOOwb8xB+2Si39z59fyXTkL+J2BR3eYLeXlv60hOFMSPbXwijwvBS+Ni1tDtE/1ta9Fpogok",
-	"bHRieY1NfzxOH4/Thz9OtPfe/zQ5ue/O4qhQDez0VVW6mMoAQY7jIZ8IuZMby61IMEMM5ZLCK1IJZrXl",
-	"BRncWSs14jvwvain3JrNOttTTWln2WZZZw/JFQPoRMgpC4UGQuQ+jU4IFjkXFxLx/TrsC4EGD/wumU1Q",
-	"Kw3jxRV4zxlhWQs9kpkYje2U8kdK9DB0Fl6jS2agK0lPoSdLlajWOeAR/gA8cgm42JUohU+twjI9GqEp",
-	"p9NTT3B2oGv1HhkR8AeximDn0SoTB75aXoqeUpPRuSgJ2o8Ap8hpEDmXyv3fuHbRQ4bTuFCy7ykXusIV",
-	"1RvAaUJHUZVW0l7i2dB9Jg0DnYUVyjcdNUeVZHxCLpgHGFuES4Cgi0x7Bw5DMUQd3J6oznTPOzyHCISU",
-	"XrgYA9rhIYCg44OHksV+vO7L+G3axsjoRn/TUCC8ijuBgRo2zt1UJVWCrsNx6TsQsPBx7OaqlTALdSin",
-	"WNFjXNyNXYbilKu3mhx2txtnh/2ZU7jTFD0RzZEFccbXv4zcd3+JJhG6KZDi6sFMrFYNqoae3I7HYzlZ",
-	"26OxMo7M5yTQpTPUAxFqRRiEVfo5R3/I8RyBarXyvj1jgXSDTNczkLNgb3dZyWKsxtk4rAPG2V53l1An",
-	"TE1ujEguxtdNPFYE0XgSQS95IXN2PrE+TJB6lnHlkCacn4AuKfgO7jNB6acSTMIVlhoxHosEFb4DoKr4",
-	"kWmTRyQA5ZCqLPGqOMeKxzhodTzyA0Ds7KmcW14l5rPDUl8pcLyfQrgp9V+q8cSy1v71dZtaiUFofUq2",
-	"czHVDvOHzj85AxxEk04YG+i94TKdGktzWq1TlTfv0HsXwJS410lI71fwc1FgVlBeGrxpe6o1l6zMsAvN",
-	"pLI6Dj6lzWKvNFUFDAuMh5khLBnvqVrc6aE/NDKvuT6MRel7hbPwq1/9ij3NxWisrVDZtKfOBDAc0aPt",
-	"34spguCNwB+jFLaUAlZjIDrs92JKteOR81EePUXAI3g/G7ruxQi7D0DKhGTi86vt7TMMTvA5AZEA3UNH",
-	"DlCaoBYWuScPpXRA5dlfnb184dKwhsln3LAxLytwUpXpEMrPWkaD44gVzIx5RoGIIwHb3nE0bkZH3FpR",
-	"tg+poZ46Pvuq1hDea6y6FwNqFGDJnut8ys6nVoAUuc3O+EiwN2KaUO6faFCJg2F1Q8ZAYrR/0N775BMP",
-	"69lTLByoTz6BuSCHmmpce93dilJgO9gLZB29B0QKzCSjz2rLeyrGBZ9is+VEpODY4WBgcEYr1+X6cLzX",
-	"ko3HdABxk7UPYcILEaHO+uEGAiAVGxSAF0vjdk1jCA10mMJW/aGy1R5BdC4U5mn2FSb9w6ScFq3NmLVy",
-	"v/sQM/TRuE+FLafbRwMryrTNJAgiVfK6gVTSDKE/UDOO4qhqDPayI05AUqCBB0BZQnFwZ0LB5o2YhqMF",
-	"W6eVWnFtdzJzmbZ7Cq7ZyFPdMHE91qWFLzvsa+zlMXEx26DPPWChcIVe3lPk4kLA4cbFTHuRZG57pkTH",
-	"gPGtGgZQ8dSHU/XRO95foERpUo/7m7KWxkuQF+1Dl24jnWWvUhfSHDWLZPNcOMM4pMnstoOCFDeoNOz1",
-	"qyfbn7MW0EckfXh0tuk4IvitNExeKNiAbQq+2d/9vNtTLTd0wAA4hzHrkBw27W2lh+zZE1ii49NnT1gh",
-	"lcDkh+0OeyYVhtBr4zZkT2VDXvIMA7ANS3+V+sQetDxo2ikFM2/keCzyQ3ZecPUG6zTxC6evpU2uUTzD",
-	"dp1URwvWYce6mIyUCQ6ulL1VTYkCHcD0vGUZfsTeMr8i7G0lbUBQ9tvAEsGPnnq7vb1d+z/Ukr6RKk/Z",
-	"WzYVhr1lqa8hxR9YPmX0ZYiU8B+7B0wGv4gFD7E4XkhVYfxZL0qSLn1dx0cIpTwiQu11wn76j/8r687U",
-	"4KlhVRiD1cLe9vfokhc9FSahL3FKlK5aqS7PmZF67Ie5Av4FG/AMsbJ7k273vmBd1qJPiBXbbUNFQFpe",
-	"RulRx6KElYQUwo4T8KYAp6DEhJ41Co/5N8Oy4Xl1qxBznOQmiQfRU0jBbb2S+nK0vZ8OvJ9tIZqvFv1t",
-	"6FKpmplpIZqxdoed6it300rKqQD3deB+oCZ8i6SX0PTxHMTtSlMdCo+LjacAWQT6EMu/cPzsxAiWdlJo",
-	"KReZHPGC8i6D9YV5uoZEWCGVSnc7D8T2/bRNYB8M6NrEcJUbnxlVl+aQpS/4CyCoT9UgrVAj5RsR23Ao",
-	"r18pqBo3IwhUjlgnUiET426aTBQFXTPhSgEiO6Uk1QYGec8wONOBsuLOouLK5+iA9csnbkpzP4VEajgb",
-	"SQKjCHNI7xNgcxjOo+PDq+udBAPgfRzJdcGinqY5fzUgdpSbFm1d+NF+9+GnxAvRuuGkOKQ5XARRsnQH",
-	"SpodPC+Zwn+E+0Wdo0cpbY/m79N22DM4xx4g3hCXSPPYArQUTCkV2Gw4eIGwEtkCrQ0LkT9Q5EG3S+9M",
-	"wkIVXoLzQO1w0eOdRl7NLn0xVLXX7SZQAiUWPMiUqZjYJJI5UGBxWiXhpMdQI3gMuNSXWm0TNSGH08OQ",
-	"EJhPkRM61xTViyITudgRT4Xy9j2DleYCmOIycg2HKlxCalTOYkiaQ5ZmPEx5p9NJ/bqRpu4aZ+Ggp9I0",
-	"7alfOV6GGo6o7niorUauYHuXtdzVOn+FtnsKtnfipSYSKOv3gSf9SaAJiacwPeWXMlESvhfJs92k23mQ",
-	"dDvd3e5ekiz9ovvw8+Yv9pLdThe+2Os+aP7ifrJHX+zv7uIXtHv8+wQLP+gmX293u/t7Cz7YvX+fPrif",
-	"7LkJXeAjcjrZHBok4vh/L6YN6jvYGbjTAhuIV4aDiHGSMIbkLFDvBZe02/C4XN6baGtVN/SiflUf33nf",
-	"QiQ+qlV4BVdQhY0v6mXEiW8eLr6ki4Fzh95puHxmcBgWdchz/2tP2ktf4N2dAbhPIt+lZMsLRvUK5icC",
-	"b354eC5yIpEw5pFUz4S6sMNYwRwnofhwnlGnk1VQNi4FEwFNOCSMMiRfagG/6Wh16aT5nprT4SRkI3KF",
-	"3NUQcoe4BXOGgyiEoklXMD/RKSoPiCVDc5o0cX4oP3doGVSsClbCRmeUFyBArxN1ca51IbjCzbBeoIeD",
-	"5XKRHuVE/Q+ZCP2jj9ovMFmrNpbxcJAH0kaHObZoTNSaTtwNxgvczB8kugPG4e3F3GsID3BIXipwGNxB",
-	"beFkXdTLBoMOPauZlUuRCYkoO3WKtyBC5CbM0OlE3Xm2uIlaQsw/OtX8AmKMvcGANu+NzuDm9kWfwOhu",
-	"HXGoTGQYCYCXJqmfNudeAaonB4RZgr3PpzXWKhOJv9VFUIuZYLabxyag4C6IBfYIjHl66JxFvJGRrHbk",
-	"xABxuk1OEtR5b3sk0H8UUV0nfIgcjjTuRmUZDXBXoJp3eFaIBioKdM6vnCaCwv409krqqUeiBFo0Cw7r",
-	"KdMfjpPYtDEpaqhnpqdA5QQkLmEz6C6YJdO5QPXpUXrQU7udqJWrWhcXwpcdsNQPKj3sqb24ikxPipzV",
-	"rLYzn9+fbTGgcUqfAGCmxH5cwplEXIqVHJFfYyw0qNGpshA7baauB504jq7ZvSbg+tYw35zmw+0Ggr6N",
-	"jBnUr7i1ZBbIFYvXmmyFXOPzwKylICuPKAgvGBWlqDWbg3/1bOainS3dlMB3WAEVHopSwBW6AOY1pGad",
-	"QXvFGrBucHSq7ZBMl6XILGpGvdICm66LgPfQ0EZZYdvOecvb4WEl/ZRL60x2dURdN2lYh09KyF162cOe",
-	"+jTeLjVovAOWwqbASeEFbIfP4m8jxD3WCuINnJSETHcBdI862z7ALrhTBRS/5psYnA/xaDMZeaMByrPH",
-	"gXLkNg0U4SXackgONz1FJrojxCk4YDGDMBjK8jfeFlYhC6NxDtV3T758espO94G8FoUgH7b0i4nKwRAD",
-	"fXh5bkR5SYp4w1qU3j2kMHp9/Po5y3QuSAdlJ5EbYs2Z8oBVU8B++v/+PeV0S1g02fC4p8alAE2p4uU0",
-	"qQgjlMi4An20M6kRUi5255CluYCLNaUTWO0ifIPU8kmpR2m1kO0Oq09azaI57Sk/Q966h1pKt+DO0Fnq",
-	"K89RVnpy3lNmDNeiGQph2RXSOvhN0w1LNik4GkTKKhvpbxP2m4RtJ+zfJszyc0ytfHwaICC5u6TabFyK",
-	"gbx2U4DxJWNtbKnHQ+GgqeHmie8oDtefpokiw3UN3wKnhNab8k2TctpfUjBqCCtj0s5N2fV2vNOGxWfb",
-	"l3u/EeVnNIV+j/XUl88+Y5d7nQedXZa+PH397Wl3N2UjYQw6ykrFHp9+xtArAi8lrUQEdMVaz8++THrq",
-	"5Ren9OrlF3+Nr2moBzSwhDbiRIGZnd4w2o4J09UG7ikrR5g4i4LagZMao38t1R2lL4UDlri7XVzAN0wo",
-	"uvEwJyIvSwked+T2gA4Kz589O2GDkpClMT3Ol69enQC6mgrOOHZYipDXFdZvojJRWi6VnbLzSX4hLJsK",
-	"53YQJ7JEBfclLxz8JS6OM9QskEBOg2faBxBEAp1Zpvg68tTGbziYlOlYsIr2dCpNoj6HOx8Z5PdUz9E8",
-	"LFbPzakutxZt7eXlmiUrav6jdPULyAxTh9engICJulPfTZd0EFu+BUdOqidiPwPF8up9l1mrxWdSVniu",
-	"0VTGIvA9Qcd2adh3BOwmHUurMjErRqHhlS4VgEWiZNfO+aKyMLQq4Q4MvwPn9xThRwVWsHImdxZLp5cN",
-	"zEUUrFExL/dmozTgvl/gbMqW+5rCjNY5dGnm5MorXk33ofMbIgELMzE6p/jgP+Y1RZgcAyUtYZwvwqIE",
-	"I86g3lNRqxgiUvF/s0I6OC74veAW3MtyFGcgrRHFACUEgKxCnUIQICqxb6JWup26S9AlTIBlQZO780aF",
-	"toZQd0h84Vw13NY4DA4QTOY1H9PY6xOtz1BXAowXiEQOYdvLPtKGMJIhN3GlTmzxQyOpoKeq0S22V7oJ",
-	"fK8L8g7SuVGvfqaA+Np92XifBXE0xAmXlZbGu2V+xCL9aL64e2VpnofdaHVkyPjOg5TaoRhtcrsvMWW4",
-	"hna+Dz4e7+5aUzqovN6IfiaMZ6U2BgZKB9DDJ9I1inrUnppTpB6yFbdJaMrdrE5AQV2RzKs8R9Qvwob2",
-	"NwJlzam84RYIJETWFsok83QGYKxrQ5+76dzb4CxQD3UOPbod/K07zV1cm5uPcsQvnfDMnVI+s1vvTKKo",
-	"wH7oAPv04rxYT7RYTn2+mCJ/5xIF47iiZL8Jq+k7A1teT3WMzlA9FTqKWCAmQb95d3ahww6rrup/pddw",
-	"eb5syWXRREy+dmWqvLPrIB+8Bx14/frpI08Bbp/f+zpMwc+Et7oyf29Ys4+ZfD8yeB+SzvqjwXi1824t",
-	"o68XwLdH3IpS8uIuLd8ue29lPnRtYshNpvOFmPJnrsTz0Mm7pAQzjS3Fmfcd+hhpfidI83NbZSOI+TtC",
-	"lc9E6XSEpfDw8L5/sPWNBUgYo13YkbNyoM7RFc3QFJii0SZ1oXHiesxVLvJ+ZAtJyScrxSy1kCyMQphS",
-	"F9iRhtSxKWv9+A+MJ5WaqxSZ5epiUvAy6akJ+y3jOz/93X+53wYD2UwPdVkzslC0xbgUY146BwsIp6bI",
-	"uTBQgm6XFt0l/Mf9ARoYfSy2G7V77aLKjBVjMIcXEkIDnc8dGD4vIaaEbGGjZ0G+kWVPhXGa9iGLVK4J",
-	"2rqwCm/ZQ7yZYHwdc5dvjl7/1j1gP/7A/uX/z1wXdrD5dnAdKUXBrbysshD3VGyfyvToHOMjqgbuuRAw",
-	"1BHSMCAB6U4LZvzHH75q91Trr45/9xwCVNiP/+1BZ7fz6SF7PCk50Jyd46evjo7ZH14fPWdH43GHPe7s",
-	"QkiWSwcQUFh7ymGLgF4XyCVwixi3g5rE1n734RL4ylmydkdAlrPN/EwavLnRLpQn3aXk9/XNUOrDRZY2",
-	"X6o738N6ffRm/sgtfrDEpnNX580x6hfu51vnFRt1ZvOEa7WgC937C1B5rUmlKuL0Ue31S8B4f5+ztZmq",
-	"i9BnN4bVfGrMRBjQUnGVAy8E1bBWgHbZ3fucnUtr2pUaGdx4FaHFGK++ElkpbNBJoV3XBwupYnoYIlhF",
-	"6WF84DkyUQ4SpqcQWhtduNCzuNAXwBUu5lNeQVfviDnBun8mjgTbXhFMhsuUVKZ/twDgeqaQyfulE4CP",
-	"N/zdEyA824zTZokIjyMVa97p9HUIS6IED2vTl1Nxqd84EQhrOnSx6RWSQHe3XclhLjGaS9SJ7tc9FcEi",
-	"eLeGEuvNHb0iE1sjhDZ215OKD6b3rpGG/fnZomn5mIrlF8EHw1K8/zEphcrNXSbjNy6F1IIE/HVc3ShY",
-	"BTUaPQXO6WH/R3mUU1PoMaBvYFj+OTcixjwaCU6mK2esO3uENVUBM6kvkVae/lV3yWilcn1VNbjXBXhe",
-	"uCpLXXiYDyMxb/2P/7DHzh6x1hUvAZCXVC0//sN9fEi+am20bWsFPlRnQ3E15CUEKsB/W0/PXrLPPv+s",
-	"u73nhvO1MPYCQxfRZWt3e89UlSdsd/s+oN/sbe+ZhJ1u75uE7W/vkq/Abvca0AHAqbaNqhUBE8kpoqqa",
-	"WFMPcjLk1o5R2krbEIlzGP6Kg79B9eWsfD2VhgYO2IAXRqSggbuUuiBtm9ejGRzMbFJIcOu71AW60qHf",
-	"+UBceQwXABycXRw7FKXzBwuLDiAgtB7o2qcghQr51FOT0lST0GFHhI/CdhEapRpVT8HGPmQQTq4ywsP1",
-	"kMcq3hEYqYD4xy3FSwQAsn4uUD0Ii4jHirkLPYn4Q4ySz0Tigo/ONSIXTMmRsqf+cMzwIs8npTAU1cqz",
-	"rBS5tA6VqhSg9LRwqaicnb08cRhsCEvdLGFibxbcI8sgK24noVlTM+7w32kbYbRr40jgPJ2EYg3oFo8R",
-	"PQDoR+xQCg456O16uRCiBDbGLaBrPOO2oXVxvaJ1q2+h7S/1FQTaTWfPZFKxQRjuUiegCYF32ohIL+ql",
-	"f98M1LwX4zTv1WCa9z4wTDOdp0Wek6KUMClwdP2IkgALpfKKNH40qt1B+o9SDqznOByqsT/QFK1DsUHI",
-	"Zsxc5rA49Zs3Yqtor9+W1gOvh51xoW3HXF7cEfuFrdQiDKnddAb0pLoWEkYeIM7V200PcikHMe/ggErJ",
-	"/5Cuskwoi6yBcncb8UQ9FbFCNM8hONrXhqwHnQqB/p2F8I5EaB5E5OIC7u7TBmZEaUu9Xnb5nRTann31",
-	"u4934Mc78OMdGN2BcsQvxI65vPjN9ai4QdgbkoaP19jtZyGISS+FsCHtThhRsVu+laBtkU1K0BoCVTwX",
-	"vBTl0cQOtw7++M27b0KDs+fhaSXTo7e6HtQ8Larwp1YljJt2p9rvUKoBEvAJofzHdfmDRtEoEc4D3KIm",
-	"qtLNyXylT9WlKI1g41LkMvMZeLyWrgb2GNdXfd5U6R+OHKQA9iV2aq1nYBZXTYWrcLx6ookkBN1EMXDh",
-	"3syqHBW1Vpxn+VwzXzWGpCVVjF6FI+/wDxQb6DITUe3fZQ0VH+EVhrn6nVkocmsBwVWMLccoMF3ITIp4",
-	"Wl2BplpPnrqshJ2YfMODpuQv6B8YJkzXo5ZEITJbaiWzKIVqvLhYuqHaZ2AuEibkzsA/R8KWMvP1R5mb",
-	"OrPohbRbvnn3/wwA",
+	"gqsZly+qfivZqp2hrWQrHByAcx3D+X2A/8XKKLw+GuDcAzfiNT2h8MQ/812Jfr3w3cFnf4j6hA+e6kn5",
+	"8ln4JS9F9eul6yj+eHI9Pos7O//whevvu2QrCnGfFwm5IQxNCm9PIyx+RH4ayMKK0iQeR6byUItUvxRn",
+	"XkhjXbIQNpiUeEPAh7RAy3Fo5+CnN8KlfYGJ0puG9/VQs5J785y3aB+iu064++jegpsKgXEwO0r6b9MZ",
+	"H53dvc9u4KTzb1FltLv3sFln9BIZ000xGW4Q8pNLzO2/wLLq394kigjmYDS2CyLFB5Oi6C+UqwudvVnU",
+	"p8Kr7OZKlbpYFcC9VDSjmuO++TrnBxX6GE3hylARWtUbyKJjocebRJZjOyvH62pd3NObSaK1pY0Oyp6T",
+	"f6KD0rDwbnGX4mLiR85VETBuZht68Gm9oW6yzmYJKivg2Yzd8sCASF2/49suwLBEqWIklTSWqMsC0cLJ",
+	"efvLhL6m3PIb7MowAY1r+J7+OX+ZTi/LXF3iGam8Um/msnQ7kErLEk6QJ00dJRrk6XVRoFGwXT+CkL6/",
+	"URwhFd08aJAyz91kp5xiySZ1/oKYxiYIn/6MNwMWnZmI2cHNKDP9CFZA/sx1fOOTuMw0XsdtIDUFak/q",
+	"8YdzWdxQWnGMWUCacMYLb7uGJ1faY/XW4HtAAzM6lxcTPTF9KJ/eFEE2dn5ZY2cvwKZO0TOLsElANkCH",
+	"rOqnuLYlH+vCJ8akrwtNCbz8r+/glZfB8G+NYwOtR1Vzfdg91XKJLWIcwcYpAzNNTTY9QBNOT0WpodoJ",
+	"SyfKeUj1vQsayDNniF7unZfc3qsYVJeFWWnS1HixSGnb9/ZuWIYUA3NYStSWNqRXoW0aoT33mYy8CZdq",
+	"mPx3UZkIeabR3aFyxwOLlz63XKoAB5oOpCgKUTaDfY4EV/0NQxG8+06TSQq+AUtqiBaKMCM5ISzkq7G0",
+	"ZxJazZuhgeO4RpytSmuK3za6Wibu7PvjFOHlwRH3kF23gU4h8wZoiub8XLDIFcJkmNTZNYmowPyOWE5T",
+	"HduwGU39S3K4W+5m97IUY06LcGbF+AaZ4gv53USHFOhjXgplyYgzGYNxhNcyjydM8GzofgCZGz2rkI+s",
+	"LkSJ+HE//gOEG2SWE/hWAyCRa7c/uk1nfl+p1YWreMMKcKi32yeq8oY9mtkQ0aTNDTbq/EyjzftGnxdi",
+	"1ADT8vSYPdp/8JCN6QtGDjSm05C5vdk/jRJTo4NQqT0wluMsUBQhvREJoM1eCwuwyZ9qRE7ghcyZBG28",
+	"2416MCArBYN7wOXYpxS564KxwVCfQuHG605VIFTzfLobFRtzO2wcjvvAseMLK4DI1b/eduLa9gnwKVYz",
+	"WGLnRxNyoDPOHnS7CzPETkxzO1+8evWS0QcIjV4LRH9QS0a3323MtmClbcpLdjbUpWWGsG8CJXH7B2pp",
+	"7Co9mPe+en164vVwU+/+G1fm7/xJqQ6Q13kjxFiUB+6bA7dD0s5WXRGwKgoG3/oxRgAhSzzIahvn4Ps1",
+	"D8grn/xXWnZeCv6mGaYX475F2Vx+ZssfMM7+6uzFl+wlFWJSWU2ImjqfJizdQRTMHbJNKPxHuF8Z0HL3",
+	"KO0pOJvHZ18h95/SF9K9PXDF+Ui4z52hIuD6ESO5KtqIxrVqZit8xA0FpstmzLTjr1jr1+1G5qkJ7w4D",
+	"gN3HdjpGH18V8X4+dt+y60q4KmtWTcMGBbc3lIuub5KR8Hor8eNvmtU/uLzp5ZmwN3HLj70pfA72EmkJ",
+	"Aawi5vShI8pKVHl0beU3JspLmUFwpTP1NsT7kChXrME4TQobxoQ3h0emvUFZafqg6J2U4gaFQTe4JjLm",
+	"bOF3DQt16mvaBB04FjaTaiM7lAtHDzzQBRnZRI4hSAiFH4SMFqfo0DhJTwRVaQXmSW7PqBRK3PAey7q+",
+	"ou8RpHX7gUhNB4PyEgmzKRQQWCwblBFAHbavSmlFSnQUH4ATS8quhrIgKpFzy8+5wXnjNP3nUzSr+3h1",
+	"1sJK4HAZAL140L3vUn2cgqF3+whEvlkPmKpxJ3JhwxsYKWEyvnbl/e8XWEUFm2MWsTI893KxYa2htn5c",
+	"ps0KfrHtRASMT85JfXGhmdU+4GQgL5ytcsPcSQ5bo1rIlaC68+AWm+BahIaW41mQZ8iCPRenvd7wjuNl",
+	"KYnKbQDvvKFSmBwOhMpm9PmbmIM8Z1TfKsiqjGdZFeJvF7DQdezaBr5Xl42vZpaFOhS+n6l5HQQuYk0z",
+	"Xixw9J0oTP5LaSaW9HXxF4vV1fWSc43FnasvXxJ2TPNOLAQ3qNNvomZg+UJfTl7E5Mthz8eeXYdA6aAu",
+	"UjVqDBC2TJoovT/wCYQ6VIXgkIHV50eoYjQPWQrkbiiKPO0pf9NU7JXH+kxcDQmbqIG0FLCkS2YmY1Ea",
+	"kbvwKN5TazXb8cPwEFUujSgGsNSJbTQ3uJn84LeSLd/ztQkKtviyVqF7eBrX6559HarHFZyhfpsdU6n6",
+	"E7PEp4+INRJqWE+lrxZEGPOLvhGZVvkCX8oBL2lDsHMxlCFlgATBESMQfJQlN5YCC+rRRhP1RumrBUDG",
+	"S9UwFXbXPBiXtOxCWDKF4EhbE4X4GTDjCdxbFOVJ8tREOYj9cGcnlI6ItxfQLlybBjcbB7sAV9/2tucG",
+	"tvHKnpSFY+F2a2K6A4VZFy3Ot534JW4+/mR7+MpHO24oFlB8G3f0G5ZTWXPArv/7f+jCTKKyFU6gjE6v",
+	"y9/fjnEu4e9Y18j++Qd3IHuKj/REWXiSl1M2KLnzzaM0AJbygFWXCPDBUH/CSjKlJD7WtZgD1uipqgx8",
+	"NBOLaJIa3xy4ZJ/w4uSMNmpIPuHJVE95UBtvZgvNgPRvHMz7DGDCnJzFs6wUubT4PoHOgkoVIUVVjj7t",
+	"mUafrNKAD1M0RufgTqTZBHRCED+aU1bbRakfbmbepqDA/kKgWVo7RJAchKC19SC0ZiNZ1ygVzCwNPkvQ",
+	"+I15nIWOTHocM5f//J+3kq1//qHRYWQxFq8/kpsqApyviA+YdNZtPV6LxQmi/frW+QaReLbWsP03WrYy",
+	"2MzX+bhCClnn60nRvHBWXDcvx8J1uu6u2eZ1t7+ek8J1d6v6utqjs+eq6RSFSQvr7ufFDc0NfX5JmgJo",
+	"o82wwtEh9quZB1StPC0DQmrLBQIEt2cyYZLyIdNlSV1Z4FkwC2wc/hfdkNvz7+aW5DQ21M1i1lcWXo/O",
+	"9F4ZfsMUbebmhJ2cFPbJpbhRspJsiA4ICDlDewMRLJCPJER+5+J7RRmmnp08P2NKiBzB1nhmAQIU0z85",
+	"ODbOiM1jGS+KA2YDFxBsgd6KmzC0/pI7gr/pq3RRAf3aFQ8q1JC1mmJ+QK0Ed2NP0YcoxxFyKlXjBtVC",
+	"ZASKV6dRtw8rbh6HmsLFnLOUOMLU1SHxglT2numw9HdPXrGdy90dqtbsfE9/9GX+LkU3DuMZB3gMfKt0",
+	"nIFB5rjxdr1ljP9N6sl4I3uflhPVIbdV8Gxx3nMdnqOPDCV8cQkZwu9YgEpRt0XPQ4xfsw/GGmAsq2E5",
+	"NtZfLAJnfzXvILUYoH3eWuACKzwjOw/YvqaX3gJfplfxhsZvSDRSM247G2ZVuB3nnNWogOQG7Sxook+n",
+	"cH0pONC541BR9BB1FMe+SkyNJS4leGMZr71YF5ov0nksyDEL75x2wCm7EQzSjTBtyNm4Am89okKrb4q4",
+	"f/6qXsewEQtzgYFyxyZsSqnsp/vxJfqo2324++jR3oP9h/vdR492V7kvbZihAvdtf4HfmBHfLZeO0Qoh",
+	"AKZLKph9zM4LNw3JNEi4a2fuvYc37511A4K1HqcHo3fpPB36IpHr2Q0zt9djqP2wyPFcRxk1lvq8zrhy",
+	"1TNgRJ5Zy3y8ZkmFp24LGMVJYZ8KkX+AxKO4OTYVZIjRupO8o8tDrRpDqpCbQfqjq7OwOru0G/lNU5XO",
+	"inQbLpWzjMXBUp+uDAFBA/JMsdgXZcFIsTFfevFYTkXmAkbueM9VQuuyEvFl3qC5cyLcijXygA0b6uxc",
+	"JHbukrUmbBzyt2RiVskOnzbBt62BNOQKQ6ZZBB1qRhbaJGbN9Xj1OYaGH/uvl2iAv6wlYq4D6qxIrzKz",
+	"ZqFvEWVekfVkpptxJBIZTEJGs7UZKKjwKBSm36euinfVg5tEBd3G5L9v6owokQfIpjTQGfQJD4INmeXA",
+	"yJN2Fq9V46pMCvGV1Dczzbqb1ixJhQvi8SVkYHZacTkSGyoSPGM1r2TDMcy7TkJXw+Wyu71n2BUvwXiY",
+	"EFKXf0UVkIa62cjj1WYrgsJsqQuYx02A/YNaCgcRyiXRpDYvl9o4OUQ5UXDvkkW1c0vi+kbIaw45R9rb",
+	"S9K/GpyMkFmuaiNfb3AbJnA/nSgMFGvapL7BBVFvFu4hKFPrr58uFSOM/YmIbGYu1yWPE/UUWwcXhK2k",
+	"+n189hWSx5smH1w/MKCSpTcts0G6Qr0w+v09rrvNwztPJ1FcZ4MDDokTHgtoAcmcwwwyYWPAuuazgJTk",
+	"gba+ZqQGbrTWsM5ciZVR1ptlM6zJXWEFw3lphD2Lu1+tTziuq/jHifJqlrvniisK0qChhndsLMoqp0Hy",
+	"/oRm3cPctGrrTyC2/gHSH9xxQtBNQ3iXo4PPZdpcMHs3Bby7wfX8IQl2TH+XlQooJe9DXAOU36xJaY7S",
+	"wWSvEdMPNbtPQ93rUOtj9AR3rM5isn3PhJeGUKxHPBc9hf4uGJ8Kxhf/yXYo3+6wJ+BaHnKg8FD3PVO5",
+	"W6AvT8i/w9LQFsTxwg5JD5zi0Jcm69TMM2mJ78AIO5GTNw5oHaViBIU+luWUcdtTabQfUzJuhWLOuwxK",
+	"uOA6LChy8vXAPmIIcJU6eaIKYcw87qq0FcxqPWJ3g80cZWlcA49i5nacJ9xC2XIaE24cPQIWrE3C/XXa",
+	"sI8fbAYAEa7aJRdrNaCFJCkgE3wQPdEGfEdNY9Qg/W2glJ8TvZymeE1Ug4qzuz0UjcUGu91FHOs6efLy",
+	"BdaYyOwfZn+N+lYzfE05MqLRLZ3O90zNdrdJR/Jy2ve+dw0pr8sp0GoryshBz3q/N8wMDd572y5DKKLV",
+	"3zSX9VpBt+RGeOuxvFRt8ONZetTgmxsEj79/krhkUUYjxYtw+96r0D7gOsW4LefpEtw1US8Fb9PQo7Qp",
+	"ma67qVDSpsyHM40FFVOctewmUfLBxEVOoQ0xpPgc3IsMeln60HWpWForimuYtjE8jbKhRIHvabza6SHl",
+	"A9YlU0LaIanqbmlbzfdpvX31Pvl55li8G9gQkJOTPqmkaXaNIpYtpFR0LjPgAV7y7I2wwCJNPWZs3UHf",
+	"sNbJ8Vc7x8dfsRAR5RiwR92f/uY/7e522a8TcJfd8ZxtFVfYPqS9ySG/Hrr6m8TzeNQbZqQ3dqC/ecCt",
+	"RbZRkokZXOwr+ENSYx9WaR/xjdI9pccCtKm1uAYMOmhRXg9YxEJYkbbR6bfQ2JRWIqm1ZLXusCPsMna1",
+	"p3a7ri0KseShLHzDS8dBQpaOTI9GWrEx0t6MVLpPXh6xvW6389k2KtTokJo2Mbwcw4+zIYsAaIBMOzrg",
+	"PFBSP7dpk1+TH1eDoklXe4NdSfSeAPRtBFqcKBiGyP0uoBnA5NLAKXtXpEYFdLXj1macZjKf1ljMvQ1B",
+	"xsKIaz1pOmM1du1m2YubkkFWtg6hvJRyN3rsjRzSVgBVHTXC09RDei74pcDgIPSoIqQidCO4MbrUTWAx",
+	"Yz+z9S5e4qgb71wPgj3rQ5YhkGqpR51bdFULh/i3rt27cE2LEhniV8gbvHxxRi6T2K7Z+V7m73aqL02a",
+	"BEAqD1DVqtY905Mix5iac+ESqCHs+zx8FcBtDQWjgDeXFSCvZdM/ZOmML0qI3preEOhqiXuezNE3j7QN",
+	"6GQ7EMJzQfKWnZIaM34vJXsuc/oduv+9L7jWqpy7cRjeL8ur7jakx1v3o1tLvecZP+cPc1vubjV/zxVG",
+	"yNj3HE46xZDCIvvYP6xlffOk55rrDb4+fv0c8Sm8UtJdYPfMDDmmYDHKUJbWXqFndG16XNraAM6HXJhU",
+	"qx2ybuaeV9dexRqF9fDUNkFqW+TFN++LOHMyG1Z/7Sw9MZv0l6h1W3YoGwFqN1K0UevmZnaSTU0Ks+l3",
+	"7wyN9yzTY1HDXpgoc1ChVuDUHMAGD6a4A5edyCEwr2nwx4ZOJ8p4RAt6QA2cUv34CK1h5tS3gc+OqCHo",
+	"b51kbuxt4vmFccExaTYRPDKFuKobgHAoif+NIxMrAKoGcKkq7X2Tc3exvrdOqGopoNPsoUGp9S5GJpeH",
+	"KczPBDdmEdz8illyOgkPN7VpjCZSgfnc+65DM/VvNrmkIljiVO+uwxocgiuFL5xYfsi6da+K+VlQ2m4G",
+	"vJ9sOV3Jht1zpTbs3qolXMhXBn6yGeohoDt4JhJZo29Wg5+F5Z5z4vfTUq2fn91wXJKKJjRS1Sqja6PY",
+	"8q9/62eWUuG2TvfaLsqdPXvxmP22yruLPM6zF39gv60y4wJUMsRm9k2eUtDf2ePK0bcCRFN6hGH8CCvV",
+	"QnhiC36ZPYUK09wbUx24FEToEUhVH+2GVL3Z+env/suVj1nEyqFujLujr+ehqxLfqVruGCZHIC8bh1LV",
+	"EhDS2qtQZ0IaWo8xQSVFTqGD9Loac1Qg6alqFqpu6gHyk64Hhy5xLgm8Xjt5wKq5jKBNyolCuIB0JIGf",
+	"c+GnBiPtRroULji2CkcVBczr3PzVUUqgfdg7rkFMYFH7nu5cP9B1r9aw246o/urB59DSWV579gybpLzw",
+	"9TenrukzCuk6kxeK20kpNkdKt0JZcFDwt+biNIYlXuT3MAUhWuVdaWYsqCqHKNRzzF2zIDGgb84M+d6D",
+	"T+dbO/viaHvvwaesNRTXFewgV1ohliBiIOlB1Bn0R5UXqjG2o+75vuDWW0eEXJxCZcSVHAhjFyjwXpZS",
+	"WafbSBAeEc1Er18dk8lfw6ishJfco00MJyOuENGEcohDzIEZ6iuvG2lUJ7iroULl8mwf+no7oB2UdOS5",
+	"LKRtzu83pu4uzjOzVKcA69GX+bK39LzhPa1howD8+tXx+iJtqKePc7vAOZKPKLaeK+tNdgU/v2fIq/zP",
+	"aGEAUN/79+8/qgwZ8PweZlk2ImADuphupFNaCapBKlbl9kcdHRrf4fnrV8cHDs4HitT2D+MV/gjPTXs2",
+	"izYkRfp+/902/bFX/fHK/3Ew90fr37/942+2v5l73m5MowS978M4GxcJZiIv+RUvlimX/FdqIwVyVep8",
+	"upqNlvlWfU/F+y8JKWBq+7k6KPF2m98y8SzMUaxkjmLO0oAFPAZR5xukMjK+7AbCty+y0vUiqnxpv98/",
+	"9GX9EJ2NsxqtRf8ayd2a6ZCSZYSwnrBpZdhd2Jq+7ar/jSsQaa1vK+/OaliBeURR4EA+oEtQpdCjluc1",
+	"csst9XXvuA/gGTQ3qSsifaKP/ydxXUmC5UkDQ3klDXmzhK31QdNE3NYGe+48Xzf2xd4k6omutsVxT8tP",
+	"e77oBaVd2QxH7Ca2YXE95piaZ6IyUVoulZ2u2Ry5/ZqNmvNaq3W8Z/3y/R7KLKVzhW5GsRpXyUQ2SctV",
+	"S0DSoO7xrtAbjTwUAk3BIsMfokbNLkV9G05aaANv7+A/ld4BipBuSQQwomj8a5rJzQRN8c3OEiEdypob",
+	"5PZR4FxcvFMszlmWPDpc40zSNomGWNvB9c2yvqmnaa/WeB0HWRuiDAj1NnvTN7qyaHHMnkwwZbjL1wS3",
+	"dnWe+la2kvDsDBqJfj+jehv6fAO+txYysZFLvG90JZdRNbHOvN8w6qaizevd6vFVN3etn/p72IU7+BMP",
+	"3nX+7yoaw7oICB9Fcc904ithE+5m7q64JTfORXdDg1NQRXzuGebLsagce+0Q2Wa6ewPk25/t3rmFPYKT",
+	"VZ12lwgT0dqqOB3DWnMUgQHmfbsT3XazyWjv6vaLHQvv6i5cf7fHF9TKGahdWKt2bS3ZF09QByV4Dizf",
+	"a7xR39xgr/orcE23O/j6jghLuHOXzgM52B1WiU5cPpzZVm7NWXzpBR+d9KZL4JWDNZ1BhiiFYFZc2ygr",
+	"16EDJralLlg25CXPrCiBUlFmfn6esEIq5+zGEQeyLCW/EKwUdlKqmTTpwcV2QZ70b3u96253G/77Gfzn",
+	"c/jPMfznCTzcfdrrXT98uiDR+ysQLm4YxXwDCeAmAAELzHHRB5GYBK7xeqJyZnWIbMdtpZjLDFpB6axv",
+	"c12oBjeZHm+ij4PPmxrAPjWP04isFLbDzob6SjE0wmmViUMmLcu4cn6fpeDOx3lNTypqMfFYx24gKxOx",
+	"4365IQME/ut9tJKVulhAHmr5wel6L2QGQx1qmQnE0DcGEdNpwcHtHcyGGGBS+cHQuYpdX1jLqx329/YC",
+	"Fqu07Q47CTkY0B+XisH8OtgMXgpn2fJVnE/J/qon5baYCkMpyeZDT42whtHAjSgGfWplkWf+RjteOlAo",
+	"TAMDHcXRu82eM4pNaFVl2LnEnGftDgs0Hj921SDDFE0gKhwk5S3CVYEbIDpBTJowHfvd+65hVOlEPb1n",
+	"UDOEXdrv7i/+qpwopkua+w57JvilqO6EmcPLWtihxC1a4hP6tjvvG9Z7f2/TnPMVcbgFju3roYZJQCBh",
+	"DPqYGFERt0O0/invMk3u7E5bxye5tMyWXBZ4A+sr1ZT97uuhHlUVMkgWpi5gIx2wlCxOLk0daqd9njpw",
+	"Jq8Waz6RXaenHpNl/sBlG/bf1nRYfi/QrkurvZb2FPWHF2hxE4UbNnXJ4VL5XWcm5B3eU3P3ZHJ7FLra",
+	"E/ubbolmNHnXkUaiWgp1m4r9c25E4dLjLMUJg3Y/9x/fEDepDgwxry5DB5k1Ia+e0cexY1RDelSrGWSt",
+	"xAS6kkhdTr5NQBNhTJCFLfI4Yn5CEk/bKyhuUnBtxg6EjI1rTfDL8LXPS7n+dqQKoExTP2w5UZnn3Gbu",
+	"i3IiKh39lVS5vmIYJDeidD1csd2k2+36GQECDWIffq+LXBjrPkCMCZjj5mvr0kO9bYK9ESPErYwKr6ER",
+	"BDVctQhhVqOdHzZerYPxlEXuYcs8iOtn5D3Q7N4LmW4Ek32zwIIFznumYdOcuchOb7jJxaXEmWMtxX76",
+	"u79nu4vyFoYTdsNIMyMKsSAw3qew9y2EIywwfFMbsQbLi/OHg4YJiSHx4rYXrv/L+MA7JzRorNDocbAo",
+	"cC1sUcYdXaIgThOjsPlKMP8/SIgz7mTJVtk33004ZVwr9LoOZvWOn7lW6k9PojbrbyKvsrlXZ6E39RfP",
+	"NLmgRUTrAwATbQpsL4DiNxPNmovbpPCbLJQgBGHpQetbg4AL6XOpxdR0JCkiGj827UVMfz++rec/uBka",
+	"1WL9S9iTHnu/OZiUsi4pATepy/Q2kDaBox426k3DSjfFypq9Y5oTQhsPXxq+9Tih0ZqtLSDMYHAuj2mO",
+	"4o9q4UbeRBTSWVa4XtUurO+B2lib6BFu4/hwTCYyn3cP49uDo+2n33z/2bvt+Of+Jj9399416oxeN0aL",
+	"HTGMF0Pf3UznIdP46GLnGYSBTdy/fxyPR9+kMzouJ3ct0HD9v7b/3998v5vcX9Cfr3gpucoEpFstNs37",
+	"iwlhd3fMt3tp4lKxUG1sMFFZ7E8fPCbOHh8wUBqydKyvRJkmPWVa122IG+7++MOIX7euE3bdH0nV/jbb",
+	"JcEaf2I1ZsSLouaATTG7PVVzPDh0TcCu4CV4JbOWIy6gogCV/c5up9vptuPm2W9YtvvjD9eNYAPrplnK",
+	"dtf8cEFYyMzx8Lj8kJMp223c1F9VFGEmyQoCEBNx4moawXwRzoQjTc7BZGE8dHzfjrmBozioh4Msu0ld",
+	"715SQffrKZanvocwiw9x3y3GF7iJP9f7hvivlUpmcbxRlWa1Oe38rx9jCEX3xx9aA9T/ABfqIiTaO+6P",
+	"G15DWGETDF9jbvtl1yQrtbYRCDTRiRt2a/15XcfOGO/ONXxbQGZqXgm4Zt/++vFb0mZWKlCfxyeknCKh",
+	"e00XkGXxY6sjxFbO5a0FmlcY3HMco0uihVNXAehgXknjMCrWUshHXISjmKsd0vwmng93q5+reGWjGDl3",
+	"MCOo8Dr/sqZfSrzHPhwgrtP5hhRJjYLjCC4N96UPi5+Jnz8XmDEGblXyqmswIEZy8+UMuV/38M0teq2i",
+	"+eGsUEvMnev5q1MqaSVE2AMOFCGCZFpZqSZSXaSsdQxPY/+AuEfxjekqop3oyq9/dYYqT0I1tQ0TVTkz",
+	"rhv4Ct1kI8XDXl9TU1/bFRJCvYkNlvZWAH4XwEgENc8VB/LNzWQzSPvliEVfujDG2mcJI4sB6wY34wpT",
+	"AiSHmyIaLshg2V3CtN741vyg7snr3AHeQzFa9aZ99TUGVB5zlcvcZ3vbYE8Bdq5YgOiD4xA+VDMbam0W",
+	"4Y+Rxm5pNS6ylU2MWKBzHvFrF31JUaIQlFMuUHgUvLwQxjL8pLJHWV64EFOM1sLaGGGoTVSOSiBpWOZn",
+	"K2b/HGqY0jYSL26imdVWNOdU51XD2JR5I8djknPo8saU6odMjMZ2GrvRNxnAJqM+Pzf9pvn5l//69ten",
+	"T976WQE+dzvjRTYpUN3lKYSZY36benfDWQiRxqsOydfhw9lDUlVRG+7CfRJ2YRK2tVuNxeemMeT+meDG",
+	"bpN21rjtBClQd3euv+12HqTsp7/53+DX9Nu91L2uBVsAE817CtUIxIDMQuugbtHpHVpHxUjInDNhGS86",
+	"CfurTk8dD0s94lZflB32OXv4cJ+19rrdvTbb233Q7njVhu8bNLi7A+qCH/+R3Ll5T81rPCJ1xjWoMGib",
+	"M56V2hg6K5jcttAXLfzVU2eP2wFjDx7XhtFOXB42GC+Vh/jJK8XOHh+6IEjeU9W20gNPTNAmhRuPgmKD",
+	"1sSdWB77WwCQeRp2Q1/jOpnObDi4m33T8Y04ikXx8dHm9gGfQWdjJiPoGz9Hh2rBvPM3E2WpS4/e3lML",
+	"TxLjI42mSm0wOpRAk5SuEaCRLgUEx3PFhrwYNBGtDnuC00FiqE/0y4uiOpuGSRWmo189BjS5wui5CJ6B",
+	"vMbIElMF/wNoAW7Ovh70R4KrlLVgAUgpxUagcDPkLXrAvuJlawrb5l//9sd//PGHt//XD2+/be39yz+1",
+	"E/Yv/0TTgrYOGE6haN8w2DZasULB50jVHIEhthTmFFahp6r1S5i0osRphVeMMw85wEoB90aEjecn5l/+",
+	"iRD0hvrKk29hrBxhLVKxVGlFg0rbHfZUl2x+mO4o9ZQ/S3iSq57C5paWtrXf4meP61gCimJJHX2gv9zv",
+	"Pfx3Gp5P3W96bvBfB0VQW5I1OfFAxb6kLoTfJ+ry7LvS/vXMs7nfew2F/t3Ms7nfc4VqDxzyQfj9Esb1",
+	"YvAcRxVT3hfjwJxvhBzkqUK1o5mjCYkjJ15cH8iiaIIAJbnZANrCGsG2Hj/kXbJVpzlNNthZE2W9QFJr",
+	"eum95GbnJkjEy6YI/L0wU3jloFu5+7p5u9MJm3G1FQhb4ml383VAadcx0bC7+Kxm52LR5dLiyjvBEfXz",
+	"pZS2riRAuF2IHLTs+DH1og4kwtJo1AeM6qa5QrYKPkZiQFk6Osx5S7H7B4zDHegiq650VeUQk1YLlouL",
+	"UkCfoawQOST5gAV49ID9mpUImmnGXBkYAnmE4f0Eq/Ww2w5OUpWcFIlHe0nTppzfaCHa/2bi6GZB3HcT",
+	"i7205OrIbFfz/DFE34VsUko7PYOR0IjPBS9FeTSxw/l9nMJjXco/I2d0wD7Hb0kwztDHzXvVMXRGMwc1",
+	"V7mEpU5VhABvYHxKa36u8AW6R6aHzAhBtxRl1JEafPDS620/2m1ySnOAN7gUKGlhlyphYmjteOvdOzRX",
+	"D/T8kLB9cMkSJWEpm9gFEDqPdz4/16Uz3kRap8AaJcBmmp7itddzua0SMv1QQhfHcMYcIONZJsaWq0wA",
+	"Z13IbEpJZYyAWfLSZULMNlaVsHGhrUkcGnCM0mvw5E3UG6Wv4Nb4w5HP/gpVclVzvOypnvrkE2LMaJE8",
+	"eC63xOV2PvmEHYX+MZAw9Wg8sRFANfGgWg3kxaQUOctg2UvJPcAmLwMOkmFwLBVRj/HkvJBmKHJ2MZE5",
+	"RxdxrKuad5ocGJt16hhCDr0ALtX5DcMTxxCevXiJVKynxqXIRC6wTq9NVULkfi6Qrf/OJTvOvdumS97j",
+	"1K2EZd9TtKAuy4+b5UrGKcVYcO/fDIyZV5WlOLu/+hU71upSKHzWU9uEBETXlAtBLwUzir8R/QxbfSX9",
+	"0wDk0kpJTj1gQcOVAoFnjBdXuGCltDbAtBCbKa55ZospM/I6ZOjgBcvlBe5axlrpXnfv0+3u/e3u3qvu",
+	"Zwfd7kG32yGd1L9P2wfspTb2ohRnf3jmT8lIgkSFwDEmYUZDNXSv4Qe5A5ExFWrMAORw59+dG5TYQ884",
+	"XgKysKLswNRUyig8f77KId4vLTiW3h8yIedagLYvBQP7EiPaaDrsVJNXPOz18ViofBtFMg+8CA4itCXg",
+	"lFE2eTwzLCTbplpJ4ifDkbtuDEtlnu4ARn5K/uZQJOeWn5N+Xo8NpohibO/bB/fZNtuFWXJTlBVSKJuw",
+	"v+KX/AypEZOKENISNz12KEZ+enBKIOkSbBMkKDIX/AC8RihxBWfk+C4NS/EmTUMSBAcxVWHFQ5fgu8pC",
+	"4j82Gk4PsFGxWtVVWuW58lUrt+SQcYMHf/ZAVzBBFP52WlE4tBxnlUq12RBXpeoStykO9Uucb9r5A6lg",
+	"ZCdPnjzZfvhgn5F2xnTo9LgokoyX5ZR9yb9ESGGFZaaHeCqcwxMuUa4F6b7EtTTYazLF48ua7d2TtgTY",
+	"L1bXLlFaA++EW2pt29h7UBelXlvAmYEdrESBI3LcB6O710cfMEeciQgY1kqbWJMDhqxJChwRY6cB/MJV",
+	"BZPkcipwYIWLAjcaSt0k98P8ZYT0g54I2Jrf5Xi1lNDb3PiNLA3LdUZXYJgzujfPxaHbvYaZoZ5QRRRh",
+	"Ii+ULoUfjB2KKcs1loVRJi7tRsGtKJmDrjeM57krQUuPhFAPolvYJP7+NImj7ybxmhy8HX2ajFLgTqpo",
+	"xwHbZVazT/fZ0dnxyQkrhLWiNIkjfVg67QDb0Yf/HMB/ttOEhsRLFCmcoE5FYX9hWdYi7o+lFakC+fu1",
+	"kgg7DTW7QDqoLYql42XAr/f3AliLTE8dsUIa63YjV+yi1Fdhp1EMSSv93ZMYbx867J+42y1tY1Y5XFdU",
+	"EIz5BcwcKFikYpRJa3oAk13SrjxwQkDKWvAtM/LP4pCYL+wQGhtrspNLmYOseRuPGUxkNimNLh3e4RgI",
+	"gp4YbB5YNyWubd99UotvI66mNEgs4et2EqmvMOoCLwbjo0fwY/zykEZBJ8IFcFgxMkm9uWqxvhTX9pge",
+	"tqnTQ276I11CIAervvuCm+fwsN1hvxdi7Gcq7Ac31t/WWrkaygJ3YFUpQ7f+iYDcLjiXWJorhp7+abSQ",
+	"bTqCWDyq9QDV16BLxPl3+WouxKEnpa20tvaODcAd7I40KpQMTLRmY10UxHNBG3jijvxraZge8+/AO7Ty",
+	"/k1f8gvhZ+wQd48duu0lM8FyiTSTKLiZCEx9g3+RdErhUm4BMeXNfreL+x43PW3r4JIhS58rscUdSjJK",
+	"uDNZhGA3e++N2cxByNtWjG0SMdimDXQdc8UXIgknC88HdukPE7icw+Chskr8iClhVvBSxCeZ1nW/24Ur",
+	"GvMZUQxb+h1UOR92FLTKRDMDJQABSyjrRkPUDeWcniLeHFY7ZaWeWOE0BhsIZUcuEAmDdgUK6T3lAUap",
+	"nQPoyFv6wd7iEr4l5sKwt441edtTb7e3t2v/h0KxrMfe1mL+3jLi2Yj4O4Kd1HF+K0Wzz/7UhloIL7si",
+	"/cy1FUuS7C17dvL8jJiz0u2EtzVZqKU08TbEBbVDlzwb6eSoaO+YJK4hcd2u9qANCUHwKCaRcxWwu7rM",
+	"RHRhzadFTRz4jFQIIuxZNRpfXTBmb0F8M5YPBrgM8BDqDNB3ScVlzcyrSaDiincx64yctcbCRTQ6AZSX",
+	"2RB0Satn4aYjJsmfva0H0kJ3kWnG1YPOTsyKJlAeIDENo9prNUBjPYW5yUpdCLelvZjLMwvH4oB5hlaU",
+	"FT8O0xYwg9we7ilp2Z8m+YVApSPuwlqBpOZqFs1xqMlNgrQ9BZMsL7EqVdNDhBr9IXARvqgw7LCXNM4W",
+	"Sa8Acpxzy+mG89PhIqGA0vqpBmmoogo+SjU+uD3lYKdDgJUsSStSBSmz1rLo2HYnzHdFSguk/TiNSHWI",
+	"54FekbKBjDvi2goFO7qnGhQ/B3Nx1J98AtytVuKTT5zdaYTWuXxEpm4/buSPoAsiD0HaZKkriSZbl2nJ",
+	"BE4avvYqj0JYgTl8e+rFWKijlyfM69E8xpyPH+WOXlcjB0GhUrEdsD9+A6mNfD33O11yUjSOAtNE4dzD",
+	"BL+AQns491Dk5DGoFJTIrPM/wNk+8uEbCRvxAtQFcCq9qIFW2UsNieNCLPR+d/eQJCWZRyHVegJb0s8U",
+	"dQi/vt9h6c5Q8MIO/wwc6A5srCn9ORK2lJlxuVJ29FgoPpadKR8VaU+h5kVpHwud+onDiWj7W/AJWiT9",
+	"lYf2SVxIhXqQR/sPHrJxqc8LMQKRaUyKd6nVjnv6mz8ZzN9C3FxPpS/puTeQSUVDlWB2SFiKLZjUaWFI",
+	"6zgYCIw5J+EE2WVOMue5zp0MBWcJevTpo+4uvcPQITwBDloXPqZwAuTsQnJrs7O3U083w1ppb6u3lXpU",
+	"XeRSsHz7kFo/PvuKZaIo8AjvFFIJs+M4C/xHuF8ZZK70tz6wwilWuLt9zo3I2Xg4NYhEDTUgsw5dGwqe",
+	"C5xmfLzb9kEQrqGHO57PTl13KiYR+kNN+8DreY7HV0cMEckbCUvH3A4PZE4yV0qdODjJxWisrVDZdPv3",
+	"YooSBXm0OPF8JA2l7iQDSDz1WBGpG6XxXiYliXPGMe87bqs998eDmamy/DphVyWauKdjFwjl5IEoMIeX",
+	"Avi8Q9o8HmoALKtFse1qOwd5rRT8jWGc4BV8anTHNbe4CmmzIzO25zB7Cs5cQuABdGzpC+B7S4EMp6zm",
+	"iL0RU1RB7O/tATl/0O2S8hboRk/1Qv4wOkq9rXD1pE6u6cs8PXTW64kR7AI6YnWsICg0bOEvHRMlvTap",
+	"UjNhRRGyAtF9r1AmnYVnPNO/3nYake0TiA7hLJ4+rQRqT4KfNuobkGq/wdgtr05Ff9NCX/TQFbPkmc8f",
+	"hRqE3c5up8tauBBSXRC2DVbFcjEWKHZo5Sj0VNg2HvI5cZrEShSMI7EIdRkpRZBeBdEXEdC1qnShUCxH",
+	"Ctphs6I748pcoSYxiIsokN2CFIKyLCpgMArQCRltrJ6WxGtnN1YXgwkP6QXPMcoOBT5KnKukEtRGUC6e",
+	"T6s5IsWk194G/nGGV13C2rW9Ri8qcY/UhqzlNyApmGm/taO2K/2lU8hROtqczjmK0j5HBx3ySDL1GlzW",
+	"QlVITg4ZjAmFTH4IKPDqXzcJYHHqFDITQDShK0dj4KW29zrdkDywFNgqWTienRw/+fLsiesgKsmnxKW2",
+	"kPC5nXxAAlvGi8IrlDyPA+klfvfkFXQO9/BEUUrGlL4ws3KT19tEosZh4DGdPs1zjU67D2zAYWCFV0gD",
+	"fqbmF5M6NN84X8QrQzVzkoOrpDaoTtMx3vme/ujDZBwgiXHd5MhMYwdxs2BxIi3blbLaOB2zjZNA1rZV",
+	"wlKffM3dZjPZ45IodVwyn6wy8SlPYbAJcaPMXc4hQoVcgvDYpfRL5Ons7lDiio0EqtCdFd1tQjB/EuTL",
+	"VrUVt5KtSVk4U6k52Nm5urrqcHzd0eXFjitrdtzuxDIIs28LUbegUpiocan7O7v0oWMBtw627ne6nfsU",
+	"8DlEY7NnIuHvC9EUmelI5B6AOYB6zQmQOhPGIE9YSADd+RJVIZ6x7FBSHaKYJ/nWwdbvhP3CNTXj27zX",
+	"7UY5RODPmKH8kzPKEx+wyhGAmiBz88w4sJswGw+63UXVhH5RMk7FC2SEa5b6rYM/foOeoiNeTsGNE6xr",
+	"AqP7LGZu/WM1crP1DRT1LPnCSX5ZouFHTAzhwYlrTwkZGRtn5/eQPhFwcFA20QrsJErYK12+wSWiTugS",
+	"1Z/GId7Mrclz17OVawL92hkXXM6sxqw3xNzEuxbuYuqjaRuFcSxchFgQWrgS4PTtZcFggYmYMLDLnU8k",
+	"EFd0xllj27vqNtv2vpMbTHTcdRBjffcT9u+Onj+7i/l/Fduplk09Sadr0hihald5YNK8g4GTCGRIIJSw",
+	"B937PVV5ss+uCktHOicGIIWuoBE6jchZaEuiCwleG2hpDtnvD5wGiJduK+TeCdAjxlEnsSet9FTYcrqN",
+	"ibfTNpsoK4sqbAZqNkBCRxoNnCQrRdJJTyltZSaM8woVxaCDtw1sD5NGyhvoFPMvEiYHYF5MnNcr6YoK",
+	"frHg7J/SqtwhOT5FhzRhTNN+xeaZ1TSfN96fUOr+6lJnNLWvFb/kkoIKlm3tqudLtvXl7g6ySAs39ief",
+	"oBfWwSefzKmTwcuQlGEoTB1BPazUoFNW5CaIRraEcctG2tjKQgh+eOCcT6rGlBEEDQjAqMLzDjS5zA+w",
+	"QpfZyvO77jVy6c47gzYyWSpU9A14LeHGCxlyHL/qnsjct+7YOXjaUy3SM7hk4/7Yyrwd+9OArFNPfqTB",
+	"SqVE2bRbz1D7jZMUozcZRMyDK2kLtRoekvJgi0awlay5UZ0D4bukubZ6jqCqyshT8NP9Bs/ApbXJfFFd",
+	"e93u2pXhrpitqNFhsyHNN4AI3tnhx9V6phfeVSViGb1LtvbXOfWf89w7kGKR3dVFXivuDHMip0Jr0Imn",
+	"ujyXeS7QnXR/79HqEq+0fs7V1PXO/Ex0LFAuOiqzuI5wk0QnH6Ra3IUReSNTDbipzqn6A1DNfCpgTwjp",
+	"9VqUsO6CuooyUnbgGaKI+WWEM6VEIiD6yDi1sVOxKXY+7SnwFYtedthT59GQ6dG5VC5c5+jLx4csBc4O",
+	"mQWpXDApUT2rU5dHE54lhBqrVb0HHQb2euPAuirTRRY8D1nLCAFKQXI62fLGlmjCSFsZMVftA4zdYw1+",
+	"HT1V97TgpvIDaXTiOCQkKlG5MvRU3V+CoKlwzLWqwRGiU7kroOMbNoGsV0+5Biofgzk6DkOmBV2PjNfg",
+	"+9YjO3EU7SKiWQEB3l6dIW/77VUZoJ/Wq7KG47WozgpFar1KA5AWVFg/0094WUhhbP0AJNWxQcCshj7A",
+	"Aat1YJ2g8fn2IWX6fOviekXrVt9C2y+9m9aiVubv5QD996AbRVXsrbyjk+YFqk7PTuUhtHWnNzpuMDjC",
+	"TVc6eMeijj6AYH+83G/9cj8m4CBpQF8d3d3u9l10d6+X1b9+laPW+g7uc4zVJ8vVQFrAT0elSghl0CoT",
+	"kfuhUBfS+V3nFJNKT/pOz5lSfIY0zp2rFL6mBVIvTuH87bPiiGGpk8cf4HwtYpcJ3PwXfqS6+6tLfKnt",
+	"UwQe+gs9g0e0FLRFpTUUEOTiijAfswcPvuvTeWPtw2wc2OwZ9UZjlzCQQgwoLrDysPOCPbpYOdBnZM+d",
+	"a04sfUgTx38sO5kLZPxfwvFcJdDiNJmPR/QXcESjrYdOYJkj+v5EusO1rqw7c0KXnMjKBxSGMdbmvbSC",
+	"BIhmGEeLIn6bEE5BADCInFc8fF4AktClvEAcJe9obYf+JvWhwphNiFzRmER/j9RX09cDcDSymM7VVRSu",
+	"WQ+HhhZoy6cYb+f4kg47dbXPdAMnJydEi2n4BRIlYrD7GDwXjt0SjgphXT2FECcIRaaVCOpwK0AlSo5V",
+	"iAuF0oAznqGaoO3oUZge54mUjkkX0A+Wb2rQGdQ9cCv6wDuBsacuhDWMB8u1C7uUNgkePX60la886jth",
+	"CRBCn5ueMpOxKI3AwaMqzHcNrLhmtpqaj7ab4wOwUzgA09p7CgTC1nThnWB9P5ygxPgAXeRsT5FpgqN2",
+	"AcP3lQg44+yFh/R3hhZH+OlEDblUGCRz7voPoRD73UdJT6HDVeowCU3flXYuX6cIt9za39tLyNHvnLLN",
+	"eA6vcgYMFyzUdxjiVnuKun9y/AV7vtsFyJq9vXbi8+9X4aoQguqQFOFact5F6M3Vd7sqPaA+0I7DoDS6",
+	"w/Fp2GIYmaGER9lxhQ264aVuH5t+iN7rK3EF3rGWFYIbrxzHMi74zZ0DXsDjKdUDeEP+Td97/aQHwQCw",
+	"B0H7elDZkXhZnWN0hvHVwiko4ADVB+G7kOmJsoY5jABfVdv1Qro8fqYPrl7xMGqB0tGHKU0fxbG6VQLX",
+	"pcQvURv3NeO+B9QSqM/6CELQFyo3fSVE3qdY+fTADQa6WyMDMAFQ0PtlAJyo8zmC7g3lxRB+03oqXqKJ",
+	"A95gQzAWLA0NHqLrIFTiwjioL64HCePMUIpBB/boXYqvhlMKsLoQSpQco8tSV6pyDsNJbjdxOkTUn/iL",
+	"4j15HbxwP9f59NbYnNCzwJzUMQ5c5qIZNmv3w0hBMUQs+api+890tgBK8CW3Q39qfOGEpTP3NkKK14eY",
+	"LLO9/w/G4nXXYPGOtRoUDlJ/f3eNPr3k00Lz/JXWz3h5Iajcg3UmAFJnomPVc5FL/mpKSZX29/bWKexc",
+	"k4ArfKIsmHb/QpnYJ0TOY/gv5VCqEsY9U+j3dMTcfpe9nxGHOFmISeqM1cVa4uUNVEAYSF9odP9LsTFz",
+	"eZG6kb388ndMjviFWCYqviy0ffnl7+5SWMQ+7LhZaNAZn0vFSRG3jncOjvKjePiznyzYOJFcmDDaRXeu",
+	"rvG7/A6O1FkVuhnYwAAHNeLlG4wcdPA1IddM4kEjBxIBWgB7EFxfMYSX+URCbMyVKDDf3xXJK3gsQiwB",
+	"J6dFdEftKQq/9fUH3J0olg5qd2aoVcf77KsPcLzN5cVvrm/kbvfxQP9CD/TZVx/mQFfByeupe5ZqXU/m",
+	"AKRgTBTZAb48FcxGhFzlBoyiHrn98Uo6pMA9Os3VKWfe8Z1xy9LqeVpJbyhdeVmv3WFzUUcd9rIaOyGg",
+	"zGJRcTX1gE0YozV0EEM2wWBfF+gJFYLFGibDEYXDWiaMnnLoFyC4EWnybvqGT330E2HMFBhTP7FG5qIG",
+	"BSryniIJUJdEyBgnPX2Hxfp8QpRBHNAK4cu1gxFePbXffbRYqosm5Rcn11V920iw695JB6iJRXZkp14b",
+	"B6SChHxxHYRPmYuys/VRBvsog925vT0OEEZfWY/mFzvORYd+zTtmyZ1Sg4q4DSPCKUiMJjLcEV5o0G07",
+	"Y3zgFlG3VVnowcOssmpQ/Odi04PDR3ZMJoHhO+Uc6IWVQo0eWvCJlsO68FJ4SFaK6g76GtiCBwD0RpAs",
+	"BcR1OcCiKkuNce4CTrMHdVfoVq2Tsxc7J0+O2e7D7t6Dnvrxvz3s7O529sgqwPJSDizReReTarx7nNO0",
+	"eyTCCH4CA2GJ+82r2aymjLVcxD5hEOJ3EPl+Bl+genBI+Nhzt8hpWHzxC/ZTOK1t0UX+Criw0oCu7iOH",
+	"/HMTsmhjeS6Zdi5xYEQB+FWgArfsFxxImy7zzjgf3IHPwquA2EDNRPKA0yk9furQb1BaUDNIZgee4XVq",
+	"Nq8qrgTXJMTUJZFSDsO+kSh4wTsh0HespwLGDiSzAtO/x0ymCTrouwmBqvaUw6dEioRljOVWGiuzhDhW",
+	"rJeSbrknpBmEyD80lCKjuwjaKQlSBFYeTIMqpLbyDLcPcAoQR6yl+EgkLnKdwtW94aXg5/cM+7NWIoF5",
+	"5EDnncKhhgVm9MBeYby0ymdpNX3uKFRPnX1xtA3AzU5+ASVGyOVI0kgwQqM9sGaoRuzLZdqFU9wkLx8/",
+	"/VAk1u3691YiukP0kab+7DT1VQ1JK8adft/Yik24RSxyC2zic425p+O7YdZDglnNAO2n1JfCEWCfuzol",
+	"EkgDNy6eIXMklIyjga4ippdUs8Shw46waqRhvh8uLTMpBjCAk5K6ksmWV4ZXcCgIIrwGGAx2VFM/UKr5",
+	"QqsLUc6PDEMWHlWoY/BggPlBgYG2k1LFHDQhFih9RXTVNLNyUM9tcHG3rwqgvv1MaoCF9l3qlcg/ivYf",
+	"RfsP4CNIdIyFBPzv7ya4hE5XOJF35q4b8WlXLumGYloJw6zW7cqbasSVHAhjHVop3mCCAPCTnsK4XGDw",
+	"6pwdPkL2jjnu7pCYzqFAwMEYYjFwcOSL5rNsOX6OqPEV93HJS8PEzqpp+0VKwqF/i6Ji0NQdBvGRa/sF",
+	"xMeG1Wh2Db4dVi15b37sSDEMrS+1klm1hw7iIH7I7GAYppzB0+iTzpANBrMfzMhwHZb69jyvVgGt3jPV",
+	"h4ee0+OAGok53+i3MBXJjHmiFjfs5YuzV8zxpE7BBhWKkgVn1CAdgn8sAmv51qHa7/i2a6V0yIL0Npl/",
+	"o3rKd5BgVkcTY332gGiOiIMkuEtYE5EHVZ6LYSUf56DjdL6phEqw7WoJYzpyCIV+qhMwJOnsDSbY7Klc",
+	"4tWYM56hB6CD6zx0uUlAP8hlgbsPShEPTJ824h7IC/XLZCHDMfqZvARD+yup7kd28iM7+WGulfe/TZZw",
+	"kHOZxm/Zg4iYyLiVKgCsweEAkRdsuoh7+2omafkvkHebyxa/gJDUJv4jB/fzH7WvmnMWNHJzS3xh13T7",
+	"WYeTq6fYW3zO2EmUkQGqrefOiAbjZKZzbrMhgQEDYxI31D4MCQl6asSnweyhRJU56nzKhhwTndQ75UJx",
+	"Aqi9b5hyggWTpuPsgGPDxJdhkSDLku4pD7fZrptypfU5Wmr42gcBTa2ndrvdH38YwC7cUS7ZP1Tx68cM",
+	"37TwFfvp7/6euddt/x1GjAP3BSaMoYBkGb9+/Jb99B//l5kAlSqVXyee5L7VhSjhcX+cAWAEMog95V2f",
+	"fvyHvS77tQ+CYq/P2JOXR+zs6+3P9j9lz7F29lm3230ca3zr63g4H4tE3cIcxaXMcY4SH0HbU7XEevjY",
+	"xy75iNqjCsIZp1ZpVupgxvKKTuAtKZHKUWNwWD0szMvrdQTZECXWU9zC5iXrChB7NhstVqtcl84lPdIg",
+	"IyblFTDbhzNBZs7YZFw267nQNLpzOuxIRe4HTYFyNfLsPQeoC9JSAWF6isCYiScH+YHiuGjEoB8haSWu",
+	"LOkp+Ih7ZDZcFx+MhJ13Bih0f4Mx2ZIrQ3Fb3vMiBoV+5FLTOPmjcBA7HoCdlM+kTqcBAJIg/tFX2vb9",
+	"O0hd49XjVSAhHPU401uYqqqSOBSvqmLG7c19C3hAAwkxe4BpfoCZ3uPFjpwi/DaKAi+hzdqZw1XtRwcG",
+	"MxVwiglc4EsXk/lfnPgTd+5nkoDiLtCM5euwMCFuX08sUJiP4tFH8eiD+J+gXqrZK6HKN7Um6xbYoNX+",
+	"2lEunZ3vqx/vvHDlSOIdhTlFBkg86RRpj2ny6gERPhkFt3TVelfsnlL6qn3A+Ei7m4MajW5MS07NSJCx",
+	"LDVXhrjtnkJ88jUuC2Lk4GN/25BTBqHv9ZS3pHojMOYewIfIkeVRXmQa1RWnixYmiLw3kOFx7JARcRw+",
+	"DawvVR9B/TFdmkLNoJlkw9kbz3jdpi5yUTKtRId97cGDa/VDYDXdavxC9Id6UrrkOBHnJI2rxw65chNI",
+	"KwGcrsIPfEqxDoN0Sy45MwbIlwJdAikbg1TgipObZd4nJ+op1LTxtVbJD1urse0Wx7NuAkw3f5uMNHlD",
+	"+ZTIh2gJx8WlpJKLMNG43Rx57c7xlvxSLINdqpb+o/j/i3C7qa8KHFXutuWtyv6rrpDbjf85MiwlC8ri",
+	"MKM0IcEoVsZV8zAAE0TD5ZI6opDOXS9wdDHVf0+FhB1r3php2yVn49bl3QvZxdCjJ3vju5ebxgiiL/Vs",
+	"/9FYst9TwVeSvHsWywgVPXyfyJuYqt6RvNDU0Y9hOB+lh4/Swzok/w8TDjzJdAntu9V4HJd/aT2ZoKb7",
+	"3VxCKAjFNgbvIr7WJ5w7n6JvziJLy3PX1zukGNTEMhuJm7CPiK+376ZWFFHK/fpeiaM03Dfricy3aPqI",
+	"+RfU/sJeZZkDrgu7erfDXmpK346Cp6S/8WOXkX3aU1VMVxWcMns+fNUkll5Hb1p73V1AsRKIS12GFxhi",
+	"PE0i/S2RjthZeSaAradcBBv0req6z8tn589t5fdGRKqnfEd92muO7s/kSgya1j1M4/FqWApDOvlCDCxD",
+	"9+VBT0Xmi5RBqs0IDfeeCWBocfaYYCEwQ32FQygKDEIDLTppFxzCXinYRElINA/jkwq4Z5KYwfdliU72",
+	"uQc5vwseiSr/mbgiN7IG+nbigw+95mZm5Q/DCiOOMWlikRLeprZ3cf+OXLo5XD9dvh9Elr900uga3Pke",
+	"ts3/aBhZH/m8X2C4NR6eQI2SyqYYs0daiQ0uvmbWzu3pn4PDczpTMhkS6mUMu5ouztRHpLcpbQbYECs9",
+	"G/5zN/q/I2bGIgMNfkT/IqK4hhYwQixrSFq0t7v/cP+z+5/uP/wZUxctJrYVs/tRFfjz04sXyq/GHXPC",
+	"jng4b751iMacZ53z8k1YcBH2sRmsRfUiX0bwyrkohKV80Y1C30vqyF1qiURplvvFUac/iny3vqth0t3s",
+	"ru9JemOZzbvJoxDmxQIMKUjAJ2RSFLUQIdbCNINVTAtKG21AfdaFy9nPq0CElsMW4PCGHZUXWu3JnA25",
+	"GWLi2iWyxkufwu9OwJCw8p/Jc8ONbMG58uEAWx8Z6I8M9KYX4lgoOGhuD21OPmoX3c73SAfe7bgraz0b",
+	"1wz36+hLxlUUfw3kg0n0GYQ/A3q+LClSh3QUJfnPdagiN6ZKjeMMStYnOAUtTxM5eUy9D/RkNQONw74x",
+	"B+2TiX5z59fzXzoJ+Z+ARXWbL+Tlva0jOVEQP7bxiTwuBC+Ni1lDt0/0t61Fp4kqkLDRieU1Nv3xOH08",
+	"Th/+ONHee//T5OS+O4ujQjWw01dV6WIqAwQ5jod8IuRObiy3IsEMMZRLCq9IJZjVlhdkcGet1IjvwPei",
+	"nnJrNutsTzWlnWWbZZ09JFcMoBMhpywUGgiR+zQ6IVjkXFxIxPfrsM8FGjzwu2Q2Qa00jBdX4D1nhGUt",
+	"9EhmYjS2U8ofKdHD0Fl4jS6Zga4kPYWeLFWiWueAR/gD8Mgl4GJXohQ+tQrL9GiEppxOTz3F2YGu1Xtk",
+	"RMAfxCqCnUerTBz4ankpekpNRueiJGg/Apwip0HkXCr3f+PaRQ8ZTuNCyb6nXOgKV1RvAKcJHUVVWkl7",
+	"iWdD95k0DHQWVijfdNQcVZLxCblgHmBsES4Bgi4y7R04DMUQdXB7ojrTPe/wHCIQUnrhYgxoh4cAgo4P",
+	"HkoW+/G6L+O3aRsjoxv9TUOB8CruBAZq2Dh3U5VUCboOx6XvQMDCx7Gbq1bCLNShnGJFT3BxN3YZilOu",
+	"3mpy2N1unB32Z07hTlP0VDRHFsQZX/8yct/9JZpE6KZAiqsHM7FaNagaenI7Ho/u653v6Y/+3aWC9Vej",
+	"uxK3caBE8shYTbYR14s0qXBsgnN77fp0ZnZ0G2RHism8CpijpsjJ0MVi9RTFX1UtLDC/0FGYpxNNAH3w",
+	"5T0DTbeirnsTK44Q7zL30PMH7UAu6uxzqGIpCx28qaWyn+5vRUTkUbf7cPfRo70H+w/3u48e7f7sBIWC",
+	"QRYDHMI3H5ntX4Z5hVYjcZB3eNEbcBq+O9IzWduZurLLzqdD0aXzEQL+pxXBn1aZLx3rQzEviJGtlXcr",
+	"HAtkWchrZgbt+l6gPTWY2NkQ0APG2V53lwBvTE1lFXF7GNo78TA1xF6S9uuSFzJn5xPrI5SpZxlXDuTG",
+	"uSjpkuJ+gZUWlPkuwfx/YaURXrZI0NY0AIYOPzJtcsYGjC7S0ifeCuC0ADEEYz0VwgGABfdUzi2vcoLa",
+	"YamvFMT8TCHSnfov1XhiWWv/+rpNrcT41z4b5LmYagc3RpSC/JAOokkneB90HHNJlo2lOa3WqUrZeegd",
+	"m2BK3OskZBYt+LkoMCExLw0y+T3VmsuTaNiFZlJZHce902axV5qqAlkJxsPMEJaM91Qt5P3Q39cyr3ld",
+	"jUXpe4Wz8Ktf/Yqd5GI01laobNpTZwLuh+jR9u/FFPE3R+AKVgpbSgGrMRAd9nsxpdrxyPkAs54izCMU",
+	"DQxJGmKE3QcMdwJR8qkd9/YZxkX5dKRIf+6hDxnoa9EAhIKbR3E7oPLsr85efOkyQIfJB1ox5mWFi6wy",
+	"HVBEWMto8Fmzgpkxz+i+HgnY9k6YcjM64taKsn1IDfXU8dlXtYaQpWbVbRwA6wDG+lznU3Y+tQIUWNvs",
+	"jI8EeyOmCaUdiwaVOARoN2Q4l2M0vdLe++QTjyjcUywcqE8+gbkgX75qXHvd3YpSYDvYC7zpvfNVCnIs",
+	"o89qy3sqxgWfYrPlRKTgU+YQqHBGq6iJ+nC8w6SNx3QAIdu1D2HCCxEBXvvhBgIAbtQFQFXTuF3TGL0H",
+	"HaaIeX+obLVHEBgQ9Yg0+wrzjWI+YIuOLpgwd7/7CJOD0rhPhS2n20cDK8q0zSToQKq8mQOppBlCf6Bm",
+	"HMVR1RjsZUecgKRAAw+AsoTi4EmJ3OEbMQ1HC7ZOK7Xi2u5k5jJt9xTcslGQjGHieqxLC1922NfYy2Pi",
+	"d7bBlHTAQuEqcUJPkXcd5SwwDq7Ba0PmtmdKdAy44qphyGeQ+kjOPgbm+AuUKE3qIcdT1tJ4CfKifegy",
+	"/aSzjFjq0BSiZpFsngvnkwMZervtwHzjBpWGvX71dPsz1gL6iKQPj842HUfE3ZaGyQsFG7BNcX/7u591",
+	"e6rlhg7wI+cwZh3yUqe9rfSQPXsKS3R8+uwpK6QSmHe13WHPpEL0Dm3chuypbMhLnllRQlvpr1KfU4iW",
+	"B63KpWDmjRyPRX7Izguu3mCdJn7hTEW0yTVqhrBdp1CiBeuwY11MRsoE33pKHK2mRIEOYHresgw/Ym+Z",
+	"XxH2Nsq7q6/YW0/d8UdPvd3e3q79H2pJ30iVp+wtmwrD3rLU15DiDyyfMvoyBGn5j90DJoNL1oKHWBwv",
+	"pKow/qwXJSUbfV2HZgmlPBhL7XXCfvqP/yvrztTgqWFVGONkw9729+iSFz0VJgElJGi/aqW6PGdG6mFn",
+	"5gr4F2zAM4Tp70263fuCdVmLPiFWbLcNFQFpeRFlZh6LElYSspc7TsBbIZ1tBHMJ1yg8pv4Ny4bn1a1C",
+	"zHGShzYeRE8hBbf1SurL0fYugvB+toVovlr0t6FLpWpmpoVoxtoddqqv3E0rKZ0L3NeB+4Ga8C2SXkrk",
+	"gecgblea6lB4SH48Bcgi0IdY/kvHz06MYGknhZZykckRLyjlOxh+madrSIQVUql0t/NAbN9P24QzxICu",
+	"TQzKHi4psy7NIUu/5F8CQT1Rg7QCrJVvRGw+ppSipaBq3IxgjgSEWZIKmRh302SiKOiaCVcKENkp5cc3",
+	"MMh7hsGZDpQVdxYVVz49EKxfPnFTmvspJFLD2UgSDk6YQ3qfAJvDcB4dH15d7yQYAO/jSK6LU/c0zbnK",
+	"ArGjtNhoZseP9ruPPiVeiNYNJ8WBXOIiiJKlO1DS7OB5yRT+I9wv6hw9Sml7NH+ftsOewTn2uSkMcYk0",
+	"jy0AasJsdoHNhoMXCCuRLVAYsxB0CEUedLv0ziQsVOElOJ8jAi56vNMooMJlToeq9rrdBEqgxIIHmZKk",
+	"E5tEMgcKLE6hLZz0GGoEZyWXdVerbaIm5Ot+GHKR8ylyQueaAAVQZCLvXuKpUNy+Z7DSXABTXEZRKVCF",
+	"y4WPdiFUVDlQe8bDlHc6ndSvGxkJrnEWDnoqTdOe+pXjZajhiOqOh9pq5Aq2d1nLXa3zV2i7p2B7J15q",
+	"IoGyfh940p8EmpB4CtNTfikTJeF7kTzbTbqdB0m3093t7iXJ0i+6jz5r/mIv2e104Yu97oPmL+4ne/TF",
+	"/u4ufkG7x79PsPCDbvL1dre7v7fgg9379+mD+8mem9AF7mmnk81RiSKO//di2mA5gJ2BOy2wgXhlOHQq",
+	"JwljNOACy0Lwhr0NZ+/lvYm2VnVDL+pX9fGd9y2AgKBahVdIKRVixaJeRpz45kgVS7oYOHfonYbLZwYC",
+	"ZlGHPPe/9qS98AXe3VnuiEnkNplsecGoXsH8RODNDw/PRU4kEsY8kuqZUBd2GKui4/w3H84p83SyCkXL",
+	"ZX/zxodLTzfJw7UF/Kaj1aWT5ntqToeTkHnaFXJXQ0hb5BbM2Syj6K0mXcH8RKeoPCCWDC350sSp6fzc",
+	"odFBsSpOEhudUV6AAL1OwNe51oXgCjfDejFmDhHQBZmVE0UwFx/jyz66x951nmhtLOPhIA+kjQ5zbNGY",
+	"qDXjRxqMF7iZP0hgGYzDu6pwryE8wCF5qcDB/we1hZN1US8bbMn0rObRUopMSAT4qlO8RdbRGzBDpxN1",
+	"54kqJ2oJMf9oYvwFwBt4gwFt3hudwc3tiz532t36AFKZyDASsHZNUj9tzrMLVE8Og7cEe5/PqK5VJhJ/",
+	"q4ugFjPBbDcPi0JxpVL1lAd/zdND56fmjYxktSO/C/SVaPDPos572yPlG0ER1XXCR+fiSONuVJbRgLQH",
+	"qnkHpYdAxKLAuKDKXyso7E9jj46eeixKoEWzuNSeMv3hOIlNG5OiBrhoeioXmQQSl7AZYClM0OvcR/r0",
+	"KD3oqd1O1MpVrYsLkRMPWOoHlR721F5cRaYnRc5qVtuZz+/PthiAgKXPPTJTYj8u4UwiLrtTjqDTMQwj",
+	"1OhUWQjbOFPXg04cwtvs2RcgxWtwk07z4XYDoW5HxgzqV9xaMoshjcVrTXqlZhMmdCnIyiMKgipHRSlq",
+	"zeaQpz2buWhnSzcl8B1WQIWHohRwhS5AmA5ZoWeAprEGrBt8LGs7JNNlKTKLmlGvtMCm6yLgPTS0UULq",
+	"tvMb9XZ4WEk/5dI6k10dzNtNGtbh86Fyl9n6sKc+jbdLDZXzgKWwKXBSeAHb4WH8bQT2yVpBvIGTkpDp",
+	"LuB9UmfbB9gFd6qA4tfcooPfMx5tJiNHWACY9xB0jtymgSK8QFsOyeGmp8hEd4QQKQcsZhAGQ1n+xtvC",
+	"KlBzNM6h+u7pFyen7HQfyGtRCHKfTT+fqBwMMdCHF+dGlJekiDesdckLh5OCg319/Po5y3QuSAdlJ5EH",
+	"dM0R7YBVU8B++v/+PaWTTFg02fC4p8alAE2p4uU0qQgjlMi4An20M6kRSDd255CluYCLNaUTWO0ifIPU",
+	"8mmpR2m1kO0Oq09azaI57Sk/Q966h1pKt+DO0FnqK89RVnpy3lNmDNeiGQph2RXSOvhN0w1LNik4GkTK",
+	"KhHybxP2m4RtJ+zfJszyc8zqfnwa0Ge5u6TabFyKgbx2U4ChbWNtbKnHQ+FQ8eHmie8oDtefpokiw3UN",
+	"WgenhNabUt2TctpfUjBqiGhl0s5N2fV2vNOGxcPty73fiPIhTaHfYz31xbOH7HKv86Czy9IXp6+/Pe3u",
+	"pmwkjEEffanYk9OHDL0i8FLSSkQYe6z1/OyLpKdefH5Kr158/tf4moZ6QANLaCNOFJjZ6Q2j7ZgwXW3g",
+	"nrJyhDn7CE8DOKkxuvZT3VHmZDhgibvbxQV8w4SiGw/TsfKylODsS24P6KDw/Nmzl2xQEqg9Zub64tWr",
+	"lwDsqIIzjh2WIqSUhvWbqEyUlktlp+x8kl8Iy6bCuR3EOXRRwX3JC4e8i4vjDDULJJDT4BT7AQSRQGeW",
+	"Kb6OPLXxGw4mZToWrKI9nUqTqM/hzkcG+T3VczQPi9Vzc6rLrUVbe3m5Jf6bHzPl/BKSUtUze5Cv8UTd",
+	"qe+my3eKLd+CIyfVE7GfgWJ59b5L6tfiM9lyPNdoKmMR+J5gTI007DvClJSOpVWZmBWj0PBKlwogslGe",
+	"fed8UVkYWpVwB4bfgfN7iqDrAitYxbE4i6XTywbmIooTs7EneT1ADO77Bc6mbLmvKcxonUOXZk6uvOLV",
+	"dB86vyESsOAu8fE4wX/Ma4owLw9KWsI4X4RFuY2cQb2nolYxOq3i/2aFdHBc8HvBLbiX5SjESVojigFK",
+	"CICWhzoFP9JI7JuolW6n7hJ0uVpgWdDk7rxRoa0h1B1y7jhXDbc1DoMDBJN5zcc09vpE6zPUlQDjBSKR",
+	"A/f3so+0IYJtyE1cqRNb/NBIKuipanSL7ZVuAt/rgryDTJLUq58Ji6N2XzbeZ0EcDRAFZaWl8W6ZH2GQ",
+	"P5ov7l5ZmudhN1odGTK+8/jIdihGm9zuS0wZrqGd74OPx7u71pQOKq83op8J41mpjYGB0gH0yK10jaIe",
+	"tafmFKmHbMVtEppyN6sTUNaJGHMJuypvuAUCCZG1hTLJPJ0BBP3a0OduOvd2QZhY6NHtQP/dadr02tx8",
+	"lCN+6YRn7pTymd16ZxJFhTNGBxiOQl7yK16sJ1ospz6fT5G/cznKcVxRnvGE1fSdgS2vZ1lHZ6ieCh1F",
+	"GCKToN+8O7vQYQeTWfW/0mu4FIO25LJoIiZfuzJVyut1QFfegw68fn3y2FOA2+f3vg5T8DNBPa9MHR7W",
+	"7GMS8Y8M3oeks/5oMF7tvFtLJu4F8O0Rt6KUvLhLy7dLHF6ZD12bGHKT6XxhOoszV+J56ORdUoKZxpam",
+	"uPAd+ghycSdJLua2ykbZLe4ooUUmSqcjLIXPTOH7B1vfWECjMtqFHTkrB+ocXdEMTYEpGm1SFxonrsdc",
+	"5SLvR7aQlHyyUkyQDXkKKYQpdYEdachanbLWj//AeFKpuUqRWa4uJgUvk56asN8yvvPT3/2X+20wkM30",
+	"UJc1IwtFW4xLMealc7CAcGqKnAsDJSAOadFdwn/cH6CB0cdiu1G71y6qzFgxBnN4ISE00PncgeHzEmJK",
+	"yBY2ehbkG1n2VBinaR+ySOWaoK0Lq/CWPYS6CsbXMSc0EGew/a17wH78gf3L/5+5Luxg8+3gOlKKglt5",
+	"WSVA76loTUBzeo7xEVUD91wIGOoIaRiQ+3inBTP+4w9ftXuq9VfHv3sOASrsx//2oLPb+fSQPZmUHGjO",
+	"zvHJq6Nj9ofXR8/Z0XjcYU86uxCS5TKRBADonnKwRgeMI7lkEoOoyBcIojgfLUHOnSVrd4ShO9vMz6TB",
+	"mxvtQnnSXUp+X98sQUa4yNLmS3Xne1ivj97MH7nFD5ZTee7qvHl6jIX7+dZ5xUad2TzhWi3oQvf+AlRe",
+	"a1Kpijh9VHv9EvCP3udsbabqIuDrjRF9T4yZCMM4K7nKgReCalgrQLvs7n3GzqU17UqNDG68itBijFdf",
+	"iawUNuik0K7rg4VUMT0MEayi9DA+8ByZKAcJ01OI6o8uXOhZXOgLw6RdzKe8gq7eEXOCdf9MHAm2vSKY",
+	"DJcpQrNzCwCuZwqZvF86Afh4w989AcKzzThtlojwOFKx5p1OX4ewJMotszZ9ORWX+o0TgbCmQxebXiEJ",
+	"dHfblRzmcjK6HMHoft1TESyCd2sosd6c6nQmtkb0fuyuJxUfTO9dIw3787NF0/IxC9Qvgg+GpXj/Y1IK",
+	"lZs7gjmlL1z2utn07EHFEUN6R8EqqNHoKXBOD/s/SuGemkKPAX0Dw/LPuREx5tFIcDJdOWPd2WOsqQqY",
+	"SX2JtPL0r7pLRiuV66uqwb0uIIPDVVnqwsN8GGkZt+zHf9hjZ49Z64qXgAVOqpYf/+E+PiRftTbatrUC",
+	"H6qzobga8tJCZEBpWevk7AV7+NnD7vaeG87XwtgLDF1El63d7T1TVZ6w3e37gH6zt71nEna6vW8Str+9",
+	"S74Cu91r1qJAmjaqVgRMJKeIqmpiTT3IyZBbO0ZpK21DJM5h+CsO/gbVl7Py9VQaGjhgA14YkYIG7lLq",
+	"grRtXo9mcDCz+WjBre9SF+hKh37nA3HlMVzslZ5bHDsUpfMHC4sOICC0HujapyB7E/nUU5PSVJPQYUeE",
+	"j8J2ERqlGlVPwcY+ZBBOrjKC4vZo6yreERipgNDrLcVLBACyfi5QPQiLiMeKuQs9ifhDjJLPROKCj841",
+	"IhdMyZGyp/5wzPAizyelMBTVyrOsFLm0DpWqFKD0tHCpqJydvXjpMNgQEb9ZwsTeLLhHlkFW3E4uxaZm",
+	"3OG/0zbCaNfGkcB5ehmKNaBbPEH0AKAfsUNpwqRCb9fLhRAlsDFuAV3jGbcNrYvrFa1bfQttf6Gv2Iir",
+	"6eyZTCo2CMNd6gQ0IfBOGxHpRb3075sx4vdiiPi9GkL83gcGdKbztMhzUpQSJgWOrh9REmChVF6Rxo9G",
+	"tTvIPFTKgfUch0M19geaonUoNgjZjJnLHBanfvNGbBXt9dvSeuD1sDMutO2Yy4s7Yr+wlVqEIbWbzoCe",
+	"VNdCwsgDxLl6u+lBLuUg5h0cUCn5H9JVlgllkTVQ7m4jnqinIlaI5jkER/vakPWgUyHQv7MQ3pEIzYOI",
+	"XFzA3X3awIwobanXyy6/l4W2Z1/97uMd+PEO/HgHRnegHPELsWMuL35zPSpuEPaGpOHjNXb7CVBi0ksh",
+	"bEi7E0ZU7JZvJWhbZJMStIZAFc8FL0V5NLHDrYM/fvPum9Dg7Hk4qWR69FbXg5qnRRX+1KqEcdPuVPsd",
+	"SjVAAj4llP+4Ln/QKBolwnmAW9REVbo5ma/0RF2K0gg2LkUuM5/8y2vpamCPcX3V502V/uHIQQpgX2Kn",
+	"1nryd3HVVLgKx6vnuElC0M1slhc7FB5QYCBEXmvFeZbPNfNVY0haUsXoVTjyDv9AsYEuMxHV/l3WUPER",
+	"XmEy44ULtjaRWwsIrmJsOUaB6UJmUsTT6go01fryxCVE7cTkGx405Z1C/8AwYboetSQKkdlSK5lF2Zvj",
+	"xcXSDdU+A3ORMCF3Bv45EraUma8/ShrXmUUvpN3yzbv/ZwA=",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
