@@ -254,6 +254,10 @@ func TestScopeMatrix(t *testing.T) {
 			return jsonCall(http.MethodPost, "/v1/instruments/photometer-7/predictions", map[string]any{"analyte": "nitrate", "at": future,
 				"samples": []map[string]any{{"id": "W-1", "responses": []float64{1.5}}}}), http.StatusOK
 		},
+		"createInstrumentPredictionBatch": func(*testing.T) (call, int) {
+			return jsonCall(http.MethodPost, "/v1/instruments/photometer-7/predictions/batch", map[string]any{"at": future,
+				"analytes": []map[string]any{{"analyte": "nitrate", "samples": []map[string]any{{"id": "W-1", "responses": []float64{1.5}}}}}}), http.StatusOK
+		},
 		"createStandardMaterial": func(*testing.T) (call, int) {
 			materials++
 			return jsonCall(http.MethodPost, "/v1/standard-materials", map[string]any{"code": fmt.Sprintf("CRM-%d", materials),

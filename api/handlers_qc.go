@@ -2,6 +2,8 @@ package api
 
 import (
 	"context"
+	"errors"
+	"fmt"
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
@@ -131,6 +133,42 @@ func (s *Server) GetCurveInForce(ctx context.Context, req oapi.GetCurveInForceRe
 
 // CreateInstrumentPredictions quantifies samples against the curve in force,
 // so that a LIMS need not track curve ids.
+// CreateInstrumentPredictionBatch quantifies several analytes of an
+// instrument against their curves in force, whole or not at all.
+func (s *Server) CreateInstrumentPredictionBatch(ctx context.Context, req oapi.CreateInstrumentPredictionBatchRequestObject) (oapi.CreateInstrumentPredictionBatchResponseObject, error) {
+	at := s.lab.Now().UTC()
+	if req.Body.At != nil {
+		if err := lab.CheckTimestamp(lab.InBody, "/at", req.Body.At.Time); err != nil {
+			return nil, err
+		}
+		at = req.Body.At.UTC()
+	}
+	samples := 0
+	for _, a := range req.Body.Analytes {
+		samples += len(a.Samples)
+	}
+	if samples > lab.MaxPredictionSamples {
+		return nil, lab.FieldError("/analytes", "%d samples in all; at most %d may be quantified in one request", samples, lab.MaxPredictionSamples)
+	}
+	out := oapi.PredictionBatchResponse{Predictions: make([]oapi.PredictionResponse, 0, len(req.Body.Analytes)), Cautions: calib.Cautions()}
+	for i, a := range req.Body.Analytes {
+		in, err := s.lab.CurveInForce(ctx, req.Instrument, string(a.Analyte), at)
+		if err != nil {
+			var le *lab.Error
+			if errors.As(err, &le) && le.Kind == lab.KindNotFound {
+				return nil, &lab.Error{Kind: lab.KindNotFound, In: lab.InBody, Field: fmt.Sprintf("/analytes/%d/analyte", i), Message: le.Message}
+			}
+			return nil, err
+		}
+		p, err := s.predict(ctx, in.Curve.ID, req.Body.Confidence, a.Samples)
+		if err != nil {
+			return nil, err
+		}
+		out.Predictions = append(out.Predictions, p)
+	}
+	return oapi.CreateInstrumentPredictionBatch200JSONResponse(out), nil
+}
+
 func (s *Server) CreateInstrumentPredictions(ctx context.Context, req oapi.CreateInstrumentPredictionsRequestObject) (oapi.CreateInstrumentPredictionsResponseObject, error) {
 	at := s.lab.Now().UTC()
 	if req.Body.At != nil {

@@ -5,6 +5,7 @@ import (
 	"net/http"
 	"reflect"
 	"testing"
+	"time"
 
 	"curvekeeper/api/oapi"
 )
@@ -69,4 +70,50 @@ func TestFeedEventsCarryTheResult(t *testing.T) {
 	wantProblem(t, e.get(t, lims, "/v1/results/9007199254740991"), http.StatusNotFound, "path:result_id")
 	wantProblem(t, e.get(t, lims, "/v1/results/0"), http.StatusBadRequest, "path:result_id")
 	wantProblem(t, e.get(t, lims, "/v1/results/W-1"), http.StatusBadRequest, "path:result_id")
+}
+
+// TestInstrumentPredictionBatch: several analytes in one request, each
+// against its curve in force, answer exactly what the single-analyte route
+// answers for each; an analyte without a curve in force refuses the whole
+// request, naming its entry; the samples of all entries count together.
+func TestInstrumentPredictionBatch(t *testing.T) {
+	t.Parallel()
+	e := newEnv(t)
+	e.method(t, "anions-ic", "nitrate", "nitrite")
+	_, lims := e.token(t, "lims", "results:read")
+	run := e.run(t, e.admin, runBody("anions-ic", "photometer-7", baseTime, standards("nitrate", 1), standards("nitrite", 2)))
+	_, qa := e.token(t, "qa", "curves:review")
+	for _, c := range run.Curves {
+		if r := e.postJSON(t, qa, "/v1/curves/"+c.ID.String()+"/review", map[string]any{"decision": "approve"}); r.status != http.StatusOK {
+			t.Fatalf("approve: %s", r)
+		}
+	}
+	at := baseTime.Add(time.Hour).Format(time.RFC3339)
+	nitrate := []map[string]any{{"id": "W-1", "responses": []float64{1.55, 1.57}}, {"id": "W-2", "responses": []float64{2.1}, "dilution": 5}}
+	nitrite := []map[string]any{{"id": "W-1", "responses": []float64{0.8}}}
+	batch := decode[oapi.PredictionBatchResponse](t, e.postJSON(t, lims, "/v1/instruments/photometer-7/predictions/batch", map[string]any{
+		"at": at, "confidence": 0.9, "analytes": []map[string]any{{"analyte": "nitrate", "samples": nitrate}, {"analyte": "nitrite", "samples": nitrite}}}), http.StatusOK)
+	if len(batch.Predictions) != 2 || len(batch.Cautions) == 0 {
+		t.Fatalf("batch = %+v", batch)
+	}
+	for i, c := range []struct {
+		analyte string
+		samples []map[string]any
+	}{{"nitrate", nitrate}, {"nitrite", nitrite}} {
+		one := decode[oapi.PredictionResponse](t, e.postJSON(t, lims, "/v1/instruments/photometer-7/predictions", map[string]any{
+			"analyte": c.analyte, "at": at, "confidence": 0.9, "samples": c.samples}), http.StatusOK)
+		if !reflect.DeepEqual(one, batch.Predictions[i]) {
+			t.Errorf("entry %d (%s):\nbatch  %+v\nsingle %+v", i, c.analyte, batch.Predictions[i], one)
+		}
+	}
+	wantProblem(t, e.postJSON(t, lims, "/v1/instruments/photometer-7/predictions/batch", map[string]any{
+		"at": at, "analytes": []map[string]any{{"analyte": "nitrate", "samples": nitrate}, {"analyte": "sulfate", "samples": nitrite}}}),
+		http.StatusNotFound, "/analytes/1/analyte")
+	many := make([]map[string]any, 600)
+	for i := range many {
+		many[i] = map[string]any{"id": fmt.Sprintf("S-%d", i), "responses": []float64{1}}
+	}
+	wantProblem(t, e.postJSON(t, lims, "/v1/instruments/photometer-7/predictions/batch", map[string]any{
+		"at": at, "analytes": []map[string]any{{"analyte": "nitrate", "samples": many}, {"analyte": "nitrite", "samples": many}}}),
+		http.StatusUnprocessableEntity, "/analytes")
 }

@@ -339,6 +339,10 @@ const (
 	MaxFeedLimit     = 1000
 )
 
+// MaxPredictionSamples bounds the samples of one prediction request (the
+// spec's maxItems of a prediction's samples), a batch's entries together.
+const MaxPredictionSamples = 1000
+
 // MaxSessionTTL bounds the lifetime of a session of the QA pages.
 const MaxSessionTTL = 24 * time.Hour
 

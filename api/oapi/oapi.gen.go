@@ -1306,6 +1306,21 @@ type InjectionInputJudged string
 // InjectionInputKind defines model for InjectionInput.Kind.
 type InjectionInputKind string
 
+// InstrumentPredictionBatchRequest defines model for InstrumentPredictionBatchRequest.
+type InstrumentPredictionBatchRequest struct {
+	Analytes []struct {
+		// Analyte A name of an instrument, analyte, method, level or sample.
+		Analyte Identifier         `json:"analyte"`
+		Samples []PredictionSample `json:"samples"`
+	} `json:"analytes"`
+
+	// At The moment whose curves in force are used; now when absent.
+	At *Timestamp `json:"at,omitempty"`
+
+	// Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
+	Confidence *Confidence `json:"confidence,omitempty"`
+}
+
 // InstrumentPredictionRequest defines model for InstrumentPredictionRequest.
 type InstrumentPredictionRequest struct {
 	// Analyte A name of an instrument, analyte, method, level or sample.
@@ -1579,6 +1594,18 @@ type PersonRequest struct {
 
 // PersonRequestRoles defines model for PersonRequest.Roles.
 type PersonRequestRoles string
+
+// PredictionBatchResponse defines model for PredictionBatchResponse.
+type PredictionBatchResponse struct {
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions `json:"cautions"`
+
+	// Predictions One per entry of the request's `analytes`, in its order.
+	Predictions []PredictionResponse `json:"predictions"`
+}
 
 // PredictionRequest defines model for PredictionRequest.
 type PredictionRequest struct {
@@ -2830,6 +2857,9 @@ type CreateVerificationJSONRequestBody = VerificationRequest
 // CreateInstrumentPredictionsJSONRequestBody defines body for CreateInstrumentPredictions for application/json ContentType.
 type CreateInstrumentPredictionsJSONRequestBody = InstrumentPredictionRequest
 
+// CreateInstrumentPredictionBatchJSONRequestBody defines body for CreateInstrumentPredictionBatch for application/json ContentType.
+type CreateInstrumentPredictionBatchJSONRequestBody = InstrumentPredictionBatchRequest
+
 // CreateMethodJSONRequestBody defines body for CreateMethod for application/json ContentType.
 type CreateMethodJSONRequestBody = MethodRequest
 
@@ -2916,6 +2946,9 @@ type ServerInterface interface {
 	// CreateInstrumentPredictions Quantify against the curve in force
 	// (POST /v1/instruments/{instrument}/predictions)
 	CreateInstrumentPredictions(ctx echo.Context, instrument Instrument) error
+	// CreateInstrumentPredictionBatch Quantify several analytes against their curves in force
+	// (POST /v1/instruments/{instrument}/predictions/batch)
+	CreateInstrumentPredictionBatch(ctx echo.Context, instrument Instrument) error
 	// ListMethods All methods, latest revisions
 	// (GET /v1/methods)
 	ListMethods(ctx echo.Context) error
@@ -3391,6 +3424,22 @@ func (w *ServerInterfaceWrapper) CreateInstrumentPredictions(ctx echo.Context) e
 
 	// Invoke the callback with all the unmarshaled arguments
 	err = w.Handler.CreateInstrumentPredictions(ctx, instrument)
+	return err
+}
+
+// CreateInstrumentPredictionBatch converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateInstrumentPredictionBatch(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "instrument" -------------
+	var instrument Instrument
+
+	err = runtime.BindStyledParameterWithOptions("simple", "instrument", ctx.Param("instrument"), &instrument, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateInstrumentPredictionBatch(ctx, instrument)
 	return err
 }
 
@@ -3901,6 +3950,7 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.POST(options.BaseURL+"/v1/curves/:id/exclusions", wrapper.CreateExclusion, options.OperationMiddlewares["createExclusion"]...)
 	router.GET(options.BaseURL+"/v1/instruments/:instrument/curves/current", wrapper.GetCurveInForce, options.OperationMiddlewares["getCurveInForce"]...)
 	router.POST(options.BaseURL+"/v1/instruments/:instrument/predictions", wrapper.CreateInstrumentPredictions, options.OperationMiddlewares["createInstrumentPredictions"]...)
+	router.POST(options.BaseURL+"/v1/instruments/:instrument/predictions/batch", wrapper.CreateInstrumentPredictionBatch, options.OperationMiddlewares["createInstrumentPredictionBatch"]...)
 	router.GET(options.BaseURL+"/v1/methods", wrapper.ListMethods, options.OperationMiddlewares["listMethods"]...)
 	router.POST(options.BaseURL+"/v1/methods", wrapper.CreateMethod, options.OperationMiddlewares["createMethod"]...)
 	router.GET(options.BaseURL+"/v1/methods/:name", wrapper.GetMethod, options.OperationMiddlewares["getMethod"]...)
@@ -6835,6 +6885,208 @@ type CreateInstrumentPredictions503ApplicationProblemPlusJSONResponse struct {
 }
 
 func (response CreateInstrumentPredictions503ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionBatchRequestObject struct {
+	Instrument Instrument `json:"instrument"`
+	Body       *CreateInstrumentPredictionBatchJSONRequestBody
+}
+
+type CreateInstrumentPredictionBatchResponseObject interface {
+	VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error
+}
+
+type CreateInstrumentPredictionBatch200JSONResponse PredictionBatchResponse
+
+func (response CreateInstrumentPredictionBatch200JSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionBatch400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictionBatch400ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionBatch401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictionBatch401ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionBatch403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictionBatch403ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionBatch404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictionBatch404ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionBatch409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictionBatch409ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionBatch413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictionBatch413ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionBatch415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictionBatch415ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionBatch422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictionBatch422ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionBatch429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictionBatch429ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionBatch500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictionBatch500ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateInstrumentPredictionBatch503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateInstrumentPredictionBatch503ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
 	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
@@ -10278,6 +10530,9 @@ type StrictServerInterface interface {
 	// CreateInstrumentPredictions Quantify against the curve in force
 	// (POST /v1/instruments/{instrument}/predictions)
 	CreateInstrumentPredictions(ctx context.Context, request CreateInstrumentPredictionsRequestObject) (CreateInstrumentPredictionsResponseObject, error)
+	// CreateInstrumentPredictionBatch Quantify several analytes against their curves in force
+	// (POST /v1/instruments/{instrument}/predictions/batch)
+	CreateInstrumentPredictionBatch(ctx context.Context, request CreateInstrumentPredictionBatchRequestObject) (CreateInstrumentPredictionBatchResponseObject, error)
 	// ListMethods All methods, latest revisions
 	// (GET /v1/methods)
 	ListMethods(ctx context.Context, request ListMethodsRequestObject) (ListMethodsResponseObject, error)
@@ -11014,6 +11269,54 @@ func (sh *strictHandler) CreateInstrumentPredictions(ctx echo.Context, instrumen
 	return nil
 }
 
+// CreateInstrumentPredictionBatch operation middleware
+func (sh *strictHandler) CreateInstrumentPredictionBatch(ctx echo.Context, instrument Instrument) error {
+	var request CreateInstrumentPredictionBatchRequestObject
+
+	request.Instrument = instrument
+
+	var body CreateInstrumentPredictionBatchJSONRequestBody
+	var err error
+	if binder, ok := ctx.Echo().Binder.(*echo.DefaultBinder); ok {
+		// A request validator built on kin-openapi's openapi3filter with
+		// KeepValidatedValue leaves the value it validated on the body. Bind
+		// that value, matching member names exactly, so the handler receives
+		// what was validated instead of a second, case-insensitive decode.
+		// Otherwise bind only the request body, so that path and query
+		// parameters are not also bound into the body struct.
+		if vb, ok := ctx.Request().Body.(interface{ ValidatedValue() any }); !ok || runtime.BindJSONValue(vb.ValidatedValue(), &body) != nil {
+			err = binder.BindBody(ctx, &body)
+		}
+	} else {
+		// A custom binder is installed on the Echo instance; defer to it
+		// entirely, since echo.Binder does not expose body-only binding and
+		// the binder may do more than decode (for example call ctx.Validate).
+		err = ctx.Bind(&body)
+	}
+	if err != nil {
+		return err
+	}
+	request.Body = &body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateInstrumentPredictionBatch(ctx.Request().Context(), request.(CreateInstrumentPredictionBatchRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateInstrumentPredictionBatch")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateInstrumentPredictionBatchResponseObject); ok {
+		return validResponse.VisitCreateInstrumentPredictionBatchResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // ListMethods operation middleware
 func (sh *strictHandler) ListMethods(ctx echo.Context) error {
 	var request ListMethodsRequestObject
@@ -11722,535 +12025,541 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P1fbxxJlieIfhW7rCkoIssZDFJUKkWigGFSUiW7pJSKlDJ7piIz3OhuwbCSh1mkmwXJqJQu+k4DFz2v",
+	"7P1fbxxJlieIfhW7rCkoIssZDFJUZopEAcOkpEp2SSkVKWX2TEVmuNHdgmElD7OQmwXJqJQu+k4DFz2v",
 	"PQ8DzMPFBWZ357kbWGQv9i0b+zbo/gybn2RxzjEzN4/w+EeRyqwZFVAphrvbf7Nj5+/vfL+V6dFYK6Gs",
-	"2Tr4fmsoeC5K/PNU2HJ6NLCihF+5MFkpx1ZqtXWwdSYyrXLDrGZXXFp2Lga6FKyEIlJddLaSrVJ8N5Gl",
-	"yLcObDkRyZbJhmLEoaqRVHI0GW0ddJMtOx2LrYMtqay4EOXWu3fvkq0xL/lIWNeN40l5KU4ez/fh1VCw",
-	"DF7eM0zm0KSEx2Nuh1vJluIjrDhf2pV/U4rB1sHWr3aqWdiht2bn9euTx1vQn5NcjMbaCpVNfy+m8x05",
-	"YlkhhbLb2VAbodgbMWUtzqA8k4ZxdqF1zrKhlploMzvklo34GwFvYMKkyHsKuiiMZYYPxCEzQjA7FEyP",
-	"RcmhlXuGRW12esqPltarGm/U123obG3e+fUzoS7scOtgd++zBNYh/IZZt1aUUOe3fzza/vd8+8/d7Ued",
-	"/sH2N9/vJrt7n737N1thuYwtpbqgyVHGlpORULZ5hWR4z2QulJUDKcqEccPG2liRsytph0xaw8qJMotW",
-	"sWrkpqt5EhrHbr/kF+J4UhpdNnc7VeLa9jP8ImV6gMsxLsWl1BPDxvxCHDJ+bmBYA13i24EsjcVXYRTf",
-	"TUQ5rYZB1W2t22XXP+ju6UQtOgLlRN3tAXgH5c1YKyPwQH7O81ParfAr08q6xefjcSEz3K8741KfF2L0",
-	"mz8Z6Oj3a7b4kkpRo/WhPufFQJcjkTMzVZZfJ+yq1OqCwY5kumScXfJiIpieWCNzOj5U7QEb+bI99Vdn",
-	"L75MGGe0g9nVUJSCcaYmo3NRsnNRaHVhEsYVm6g3Sl8pNpCiyKGIOyBMlz1VcnUh2KXUBbcC3+JSs0C6",
-	"6JjnWhimtGUwNVM4tu+SrWOtBoXMPujs4UYRRk/KDMilsdwK2LjnEog4viT60+JEUxlsdXElcsaLUvB8",
-	"mjDeU/QKTqyeWMbZQNqE8VAYXtDE85FgsiJFSBKNlUXBpOrB8C+Gtu3m4yl2IxfqQ0+I1W+EYgXP3hgm",
-	"LmH5TKbHghUSCZNULL3e9kdnG9+ZtLOFRA92Ai+elKUuP2S3fcNMQMsdBsM41/mUGT41TKtiynpbsvZR",
-	"b4txldcWGYjFu2TrS22f6onKP/S8A2XKw3asDom4lsZiz17yaaF5/krrZ7y8EB+6gzij4joTwp0OI8pL",
-	"Ud4zLNNqIC8mpchZIUeSensmykuZideKX3JZ8PPig3c455afcyNYxhXM5DmsNc+GImdKXyVhDDITwJGY",
-	"4cRaIH+5vlIJErTWAGnoVSkt8ijS4M3NVeZGb6DG3O2xc5HxiRF4bYe2pekpIKxc5edTYlFmucntwE42",
-	"DdZ9vRMxnjjeV1o/52rqLh3zs5CJeyacnhJopzRMX4oSZ8DthNsa7mvFJ3aoS/ln8UGP5nNpjFQXSXVd",
-	"JuES1CVcCPqNyNm54KUoaVZmBv31119vH03sUCgLvRTzDEv6OZZO6argiqVIo1LGrS3l+cQK1jp9esw+",
-	"ffig214uRcyyojR141Jnwhg4hE+UlXb6IWfwa1EU245LkWo8scQFnJeCv0Fuf1IIz0u643joZsCkSBYN",
-	"g2PbU3owECqHI4rsR0XBJ4Vw1+ZrZSbjsS6tyJ+LXPJXOB8fmqXAI3HPsGNqdRt6AYcDqJBWM1IM41km",
-	"xtZ0kKd1bUAXjvA5EJsTmDbse55LKMOLlyVUYKUwWwcDXhgx25OqNLPDUpihLnJziDOJfSjEwAJfyCxK",
-	"XdAloS6kEihVDfiksKxlhsTsFQVd/VrhhyNhhzrHrTiO+vH91jnP3vQzXmT9Ql/1rS5ECT3oj4mxE9dZ",
-	"MTHyUjz3wi7tX9gd3G4dbOV6AhdFAlIZfbDb7SZNsjHxprDkVZsjqfpjbkx/UPKMpuH7pXWvXfOHGclQ",
-	"j7TJRM6NlZm00z4vxsOVu/EIP3qXEIcDi75hOeD1+nrQH8hNS464yrnVZYP4fzwUwEFegfDPBlwWk5L+",
-	"pa12KcpcZvYQf2g7FKVhvBSM55fS6HKKcpsVI7NSHIR2vuQjQf25PqFCu9X88rLkIG5OlPxuItx7WC03",
-	"AFFsPOrrfmnudivAVi7EpSiM01HQpw/icnvziiIqWPbNdxNe0kX5HvtfT2whRdnPtH5j+vmdDda3Y+wE",
-	"9RF/FnfXFuhTNlzvS1HKgbsx5ilBfdu//fXjtyB1R0WI+eNlzlonx1/tHB9/1WYjPmVAWxm/4FKB8GFN",
-	"Tyk9kiChoMzeYY8dFd7rJowDJ8Ren7EnL4/Y2dfbn+1/yp4jFWafdbvdxz2V8UKeuxslbp6OWMHPdYlH",
-	"9Z5x5JsZYQ00zPSVU57dwYy/C0/0+Z9EZmFCq6vppS5kNt3wZnuCUmm41OBeGugyE4m/t0x1Y218Rc0P",
-	"9f0vnE0uljVKL74m1ijccEmsUarxilijXO2C2Jye1yh4A7leqwc1Yr1OiRrpvRGFXYeSblBqhi6uUbJO",
-	"5dYosAmNAx6X6FxRaFCGgZTcSPEMa+UREVtMvpCVXNnNd7Hk88d4oWa2RtOGXXhuFh/HZCmxWE4IZvdJ",
-	"fSfOn8PamjUv/fw2ig/Y0jX8pokK++0xa7cx8kJhRSA74AR3tpbeAd3Og/gO6HS73d2GPXakeDG1YiW1",
-	"r9Nr0tivb8ZItr6bcGVXFXGd+QN++w65w5VlXsM3s7sQ++fKN05z3NCGIpxinEqDLcPrLwM7AeJvKUDY",
-	"BZEYhGDTYV87FcL859abRXqqOp9Qh+GjcSEMy3hZTlkqTT9YNlJ2LtBwkFaPSHFGSm8JV621IneSYU/5",
-	"7xiyIuyof71z1JcmMDpQthpUplUmlMVvVYK94a4/TnQ4OYvqLKQwNVvGlVS5vmKtMZwlZb0awfNCujT3",
-	"2EhwxU7OmK/l0LMJPfVp96e/+U+7ew/YrxOW6dFIK3Zy/HL7+Rkb4zkGnmJQ6hEbiZEup20cb8EvLgTN",
-	"PuhrhqLISeVMawH2FDK6SMOu//t/6LJ//s8sl8UEKeM//2c2IB5PF5ORYP/8gx8uH+mJsvAgL6fM0xFg",
-	"bmyoW6qLnoKdlrASdNSuG99NeAG73/WjxuvxLCtFLq2b4VJcTAp4hwXPXryEcYueQjPdIeNVXWwsSqOV",
-	"M3l4W0ApzKSwxC3Wz2kuMjnihZmnKKfQVTCKowJ1xNWU+Y9RnSp4DgtXkR3LSJ1sOjGV2W1mNKObORdW",
-	"4Kz1Ufm4QPpZJh34U9P3J2QzyiNNn3Zkfygvhot5jph7XiWwVHXCFXQrVfo1LldyY3/wX54JJGZhG954",
-	"hqsa1qe4yVa0N/pub8zvMy8v3Wetq6FQLPW7LIWjSHbpdn1LxffWboPfRRM9n+TSPrkUa1Dz+gGpJIQZ",
-	"/ShoQ6+4YblWImGic9FhaTlRnawU3Io8TViK1LZDpLb6zcfjUl/GT0oB3RR52pl3S0igB02WfeC2PeUk",
-	"6x8qaDlU1FzPzMJzK7atHImmb3NhuSyamcgxL63MJgUvTcKkyooJKne5N7OWaF/gRqtOo5dFfA1zu+UH",
-	"mGwFHsy1/s2idXymLzZcRXHpnYLWEmei3TInz8yMwNXc1NdjjreHWbB56IIAwowbXeVO13zgVMvIyPkL",
-	"ODLWhXswK6UVpeR02Y0n54U0YCa7mMgcCjfoEOr3Sk/VLxanYYD7BdTLbFyKTOQCq6LFZefThtump4LP",
-	"VCG4Ec6nx8/03O4aSeUVfvPSIoqSGy4vLOHEinx+pp/C5wwJC7IYUDnL9KTImTMu+rI4W4qlIBCIHIkP",
-	"toUzk9KWTMk2fTWcRlv7XOtCcFU/NnNjDpR3/kBFOhHcCtAjXjp3okOmJkUxO4Ihh62i0FvkCv+2YSDN",
-	"bD/UQuZcUg4tF/pnt6uwQ1FGRgTn9IWsAfUIqHYu6lpi1BBfSSPcwGI18fzkrSMy1PQMtFLRbEeVkT2+",
-	"cSilCOYnOnW2Mp0AW4XHqZGCGjg3IIYuWEd0evPfwNKMBDd4ZpG1jJfyvResWZ6peuh3XJimpDoldQHU",
-	"TdVSslvNe5PHILz0V1FEu8aoJjxgaSXyw51HMn+a9FQayfvwZlbUh2dBWgc6JbWCZ0E+x0pKAW8uReD+",
-	"+mSHTVgaxHUsBTLRhBd9ENnhgZPLDdYy0kpbrWQGb/JSDmzaYdFT1gpzBkTQbZg2c4tgSI4i+cpqICyw",
-	"bzJbTFmohMzsKAHp8g2Kf1xdiI5vEN0O/CoxbplUF8LYAyyixFVwETWFHouacIbiEgoHj4NVFh2XKpdF",
-	"eFvJcHtdNtLGMiDxyvaU50qoDZNUDlBfC2MvQBQlNoVEVtYyQvRU+rsnr9jO5e6OLYXKTdrusJPaUWcT",
-	"VQhjYtJRSIMabMZNT4VJTdxZhMLByIlHZQA8BTA3iu122Uw/ewo9bRLfDlVQLVULiTo99ZIemyGY4LyV",
-	"BuG6L1U/51aknhTXF6OixOVEOTs3mgF8BWzE8VYuzGE06nuGpeJ6DMc17FOTOjIqbU/Vu1ztL12GuUyw",
-	"10hzYQ6d8l9NRgvUanWFWoMqLVaGueO1lWzF2q8FZyvWhOFX0cmqFF7YE7/3t5It3OREpOpTjbRJXYry",
-	"QiikRMB4SAMi4bjUA1mIiCg5cpxsXW/D2LcveYmrAJOAZOo5uAK7iaAHfjbw1zOevXkxeCqtf/DF/Kzg",
-	"88959ua4NjP4+PQszA79dlN05kb1xE0QvjyJZsl9TVN1SjOFz15U00X9jeYMHzx2E4c/fDvmRD2mucPH",
-	"x7UJxEcv/Sy+9JNIHpuV7qaJmntz1oySx2k0KgICguAKDSMIteF/KyRM8CSVyGs2XK5XettI0Jtk4StS",
-	"cQKtw514yQuTsG7nARDfbufRo0crtZ+PHj2q6T8fNPfKlrp4Blep2VAPeDYUV0NeIu8OlZBvlWGtk7MX",
-	"7OFnD7vbe23PEgQvVPA+K6RCt+tZDqBJMEWVxZrWAlei0FdrFsD1F2t+fMVLBQqCDTrki6zboxmex3Wv",
-	"Xs9MR2qjTmqT1sjn0FKdTopGTqe6CoF5bIWfwjJedBJ2XEjVYcdDMeqwvYestfvos9022390v33A0t3t",
-	"PZP2kGsnTeO5mGqVsx//YQ9u7Zbrd/sQPr1vUvT3Cd/cZ2ePD1m6B5Uwe6WBUVBGZBOgPf6zcO1jjbjf",
-	"Dll6ur1PZVhUJIHqe4qf60vBfoPfe8csZNvRf/yK/fR3f79HLe9v75qUDfSkZPMt91Roejduerd7nTIr",
-	"VK2Ic0fCr1EnrAeBh6lfajBlW8kWTMdWsrVHv2A4W8kW9Afeda/XvBxgUXepBvjrvv9rLzw73fd/7e+G",
-	"76B+2BkLAixejPl3EwFO4UZYRlERrAXH+NP9SVkd7TFQDnXhNVk+WOXB7t5awSv97W9+82+aZBIMKdrU",
-	"QuHV/6R+Yl8HlkZw6KSpS8juYw6bvABeOdNiMJCZFMoiI11nDkxKInOmL3kpucpEik5CYjS204T4ZDrR",
-	"hlRWSkDt0Ax+B2QvYamTIpENSwcgfCeuXvRRQlG8p0AUb1Br84zIRJ/bRhmw4uBAevZf16+MZfoxXhnF",
-	"5t5lkdpnqSzrv4MyOKbNzO1NpvZ4ZeYHfqLYSOei2BbfTcjkq8tclAcMbhxesj+edxN2vvtN4h70dSkv",
-	"pGJ/xGffTXhecpBs3XcJO9/75pAprbZdBVi7Af46fQ5/On1Jy7HJiqVKK/q2E8JL+vg2bdecx9bzEXBa",
-	"pAdNE7GYnThuYCJgO5yThIRmDa8QCMzFWqbuZKva9E3t+ncgI5Ty2jccr1rCzI//2Prr//t//5uv/7r9",
-	"0//n//zx/wCr0RXOXvQdrVxtym5t7pZPLKm3lx8sF1vDg50RDZZWb3TG8kGDUcqxzywXF6UAs+KADUoh",
-	"cj1KmILbio0j1U1kZSIv2f6lKE0j4/sqMkDCyaDviUAFKZBC46xX9+P3O7udbqfbrLp3nllarTrQT8KH",
-	"75ItsFWaJlVmZsEggt6/1BHqnlO9Ke01b2u7YT6V9mnBL5ooyVDwSymMJaFyVUUocJ0NeYmKOZmvF46X",
-	"xMGQjUrT4NAzYzOSxkqVWTq/xgsnA5JIlpsbi8DLLx0QfQWnAeX3xu7Rqz6oxhdvKvqI+Y+azwdwCbWu",
-	"7zZ1Hcnrqp4j4YWvVdPxcfd7NWGshZs0R2cA4RUjE4V6kZWTGcj5GvGfl+LL8DVob7VsvKTITzBoUxxL",
-	"kviZ0iXzHU7YRaknY4jjmDpKLhVd5kZW19v6TsnQx5fQraYDUXMem42VgBhAkdcJNFwiVpQjqYiitCYk",
-	"UDvXq9oV276h0h71h6vGdYofvYv0NCZfQlrD1OfiUlLXTWu6c91OPOf+L//1iv2WKXaF42Ym44W46QDQ",
-	"rLRyBPSV+x4VQxpvB14ULwZbB39ch9p8M8sGvywFBj1rxbhigVaHo1pzmSFjbyncNiQbAfns9dendzOc",
-	"cgMYgZ98+mABh4Cm37m9/b73vrHcTtY7JWf0aeSBVR/G6+PXz1mmK9lugfNQ0CLN0VbPKvXXInpfua8D",
-	"8XM34cpy7jNQRuBm7mdc5TLnViwkTeELUMRnuhROV57yidVp8DBCieYaaDtWjCbyQr4RrIWCEOw6UmHD",
-	"FEWcxILC7bXJGFGjY9/LJlrmxwo6Q9WsCPxCX7nGKcQDD3nuOB8FO62QRqCDkJmM4B/lkTPSiM4080Vh",
-	"VOuf4a9DkfmD/MrHxws2gT6hBl0rwRyIBfmV0PLQKcZQL7zh4t70UdMu8lvvlWs7G2pthPEoC6YSuBPG",
-	"C6Mr24JjGmgPcIUamQDS4AyI1UZ04vq5oP2Yz4wqDPfWxxV1lZs3dLFh438Wpe4PucoLt8jzmws+qRMD",
-	"Q6GZzmORXYkS9Cpj6/wbSp1PMjhGUg2kklb4/XlIqgU/L0owXmojVnufEJ4EEfDA6M2zdUkds8PL/o72",
-	"ebYs3tXNs99EYzy333QmZ6dxRryfv01q4mf9ukdxqm7bgQaCxSiSlwNrFtQSgWn2DEdFX8OtkdR0LjU5",
-	"MVKJzMlhjUpYRMlRT3WZrdZszeh9FrhYjDSZQHGTogi1vhx6zo1s9OGZOv8H71NbRbRIBRbe3DQSvxvp",
-	"h7yWb/XNPBmNeDkl6XMsS2EWi+oSBCh+SRQpE8BG1yyWzljCECGmZqjQSiycwAU8XyTVcWP7sdv7+nTp",
-	"q7hUM2kqOPphxPUzboG0+OuJ27TuitFkbpkzNuAK+N2QkOdaNMNNw4rWeuE+fybNpi6JN95AGygYZ7bS",
-	"nHaAm/5Ilyu35BfcPNekFIhAiFaV+lJc2wgwaG4ZzFa9uqg/60z5l7HQuoHaHL32eKzvpKPP89wcRHA5",
-	"pO1sNSns2omzlOiCQDj0xGZ6JEjUCOrBwURlDirrX/4JOUqIOiQZpKeEsXLksHpUNtSlSYLtJljOmbOc",
-	"V34cNZ8T0Jx7T6jjryoNaPZm23sDiLx+PYNgOAW7by7Knkpd/eRSDB7OaYcdVShSxpYcpUOYKuMd3kmB",
-	"bDo99bIUcIHgtY/3OzFEjiWeGOqaBKM29GQcPkc1bU+1UiJTKbgIqbyPX8LA03ajQYAmap4QouYKnCRB",
-	"j6QHbkbjWATWwrcwfIrZcHgP8B1MPEgERrQPnIaCvDT+NMkvSNm52A1yXrWK/pxED+e+hnc8nPsGvZa+",
-	"6F8vQZaDGyov+RXCAXBW6IuZ5eXX0jR75rlNCpV7y5z318iJAygK/Cv0se+dz4xU4GFaztvoYnC8vjPS",
-	"fb9ktpaKrm4zrk3fnEdEUPZUlX+6v7D2aquvKW3bobB8k2/7S5SN7vj2N1H5zBDP2fmuVjbefLWt5gcx",
-	"08EkHCi/8ao1aJqvhbSYVmAzOvxCiTn9YAW9l0t+obQBMgORMdVPOADVrS/tDFgTaylNyn1dgnRVak2U",
-	"rEYUUS2EH5CXTBc/8W5SpLVZhrBBhLXRJhUdRRgUthtIozPV3kzJls36/KxlyMJgRUm4Sc2FVjbsNbXN",
-	"PrpEL29YdTBLNBoNSn5x0z4Hlzdcy+ZY2t1u98cfWjOLitan2lS3d2o/b6wiJTHuxuMhgXrNdY9CV/tx",
-	"y83YbcWU+QKGcNCwwA1HSiLwIv36rPYZNVKHrEvn2W+123Cmpr01e26iqQxdDZs4WqYFcxhtzLnTlcwR",
-	"iMZ9GB2ohQT1LChxZ9X7GL+BaIkddlS5E6N/xZgQmvqkjk8PQzQPxYoqWlJ/+de/3kq2vFMudptimdb1",
-	"2Kz6/JJqPfWVRq+Oqvqjp6ehqTB4J7FsGuJVcxa5BQ+Qmo18vfoGXBYi71eOIPPRXpU1AD9yxl9Jfjpj",
-	"bkzsox75Dbc3Y0NvzXq7meX0Nk2fK4AeVtPMTY06N7ebzBs+bmi5cIrWNbW6H04TGqscG7SG9X2/RIvY",
-	"RPEeuwDtJg8BesMGGF2IoLVS5A6RJwiLrBWCAn7ryCH5ZkbR3+1Dtkt3DOnfOzeG3FnDDfpJ7DGyAU+8",
-	"ypbZaXCRc2Gl7xUoutyK75lz8i2knvib2tSo0gbkejHnVwrCCBRNEvKCO74q07TB5pwAQK7qU3QrNLJS",
-	"11l92vCqZspeC749HkFcPtLZuxZn+hpF2TYfpbDx1pPIFizJ+kH3tbWal+/8znE3HjaQsN1tcKzNG908",
-	"DgPWwXzJ2eO7KOy+OZh8ftssncAIUHyDKawO0loKjJnlqutH3JgWx9jObuP1lO+vxLVtULqTIUSQXtFh",
-	"pJVSvWHcsnNth0wogLD0s1gZOQGGyFBcGjjkw9/On4uXwhUNXH3tLN1Of70zFLQWNTSrNJk5WE1r7/3o",
-	"GkIG4P5xTnt81mXPxD57LM1Rp6Ccy12fLtH0gEIG8BlDOFA20qi55YoNeTGoQAAsL7xPjgvPq3vxpRBb",
-	"MBBX/XD4TH+gy77ZSyE+Ycd8u0cGcrSik5qzp6hl7DaEHVM4Xpg87EY9zg0hlEILad2lv3GQW8lWY7fW",
-	"FCLc9D92VaNK92tfsXv5VFydhuqf6vJsD8UGb6BYGPPMGVgaMBUC6YkMc7H7cCWSBRBfkmMBz5tVqF8I",
-	"XtjhhjShYiz97Ok3tBHz6ZpTQ+2++P2W78IpFZ7d5a6pps19crZeSP7szieEnAgDaTtS2jlooDiEdSn8",
-	"zzz/Un3eh4/XVG8sidBfDv6yHujMXKVL0V/m6lwW0V6KDMKHpxtUt6nqJ8TMr3CbmBt5TTUyuzAzXa/m",
-	"JJryKErdrVDoTuOWrFiJpghGh4yCeFpeXEm8C1riKFXinf9Lt1NnInM+3V8rMOeb2QQz3eTT++8aQ3VO",
-	"1J8I6Gg9YOhZA1YFw7bW7RezW980YJSdgNmvZMfHXwEuCNUOKTPIcuWC+iN7vxOhME8ScVquEDlRyfy2",
-	"uhYRjpwhln9KT1xc0XdZ3/1OKtgxdweWE9VG/XxQk9xDoFTcEx0HzFTLALNej09DkXdwa9AcNe09d5uH",
-	"lAWiMIIsra3AAKFRoeDqjWnXtGrceIG40Vr2RlJ6C/99FK0Qn0SZXcIhdP8930pqH2K7lWTvf9IsbiVb",
-	"YXIbu+CsHhvC/C6Td8eaePjVGqD3XLVVJ6DyxEMgQoK3ia8nyk1EOgKIOrbh1OC+QgF5TbF5jsN0c+DW",
-	"GA9TI9kL1Kyynt9M2oioyfoi2wrnKkL+ownyrlBMEjMJUWJXs1LYehqGeiTXUg1b9eU7v6XNBiZhP6Vn",
-	"WHIWmXyFUDWzppVqzPejeUEpumxD3qoaaIhPqxzFY4MTRXam54Q6WGEaJSwt9JWjp3AJpyHyssF2SaWb",
-	"uZLF0d4rlax4+euxUIuSrbmRScNcF1xM8vk06j5UwCiKufWbn/7u/9fGfGxBxlzkQIL8wbwrTzAJZwVs",
-	"ZmiV8qJwMx2NrbaQ5GJuOuN59HM4P1VBSbIOcvOiiPgNDVkY9O4C4b3Gy69n04Z8xq2g7X8jHmWtqFsP",
-	"FMpNwEc6rASqUmRCXor8ZsTiRnQtj7TIy0oFbfNaRpJZdVd0e615ZzXp6Cu6UtXYuJBVQN5mtOXVMNY1",
-	"eOVtwUsEvzFQY5PCoUE+u4HTgfEdrvcJLL6xOi+6rglSyX3Ai8KHifn3N0GonjX7Uq8aZ/kmuCCPPd6p",
-	"d4pTNriMOoyQhKJ9ZwNlDCbyGluWZqW0MuNFH60VKfDtfj+0l8GMzSyRryVbDgoDgCW7u5/t39/eY76M",
-	"T1E4cOBUdhYw5rqf3dRdpTa4m3THz0XCpjfuxSIITIhdsEMxpfgEP7kodFwNpzDjnQWImrMot4tH5Thh",
-	"RoWgmzQ+mNWb4vsVukFgOTn+gv1hj4XO0f5L2P3O/R9/+Ne/3Tm7cWPfLWysaccnbLf7Xg0aeTHizYxE",
-	"2Bn/+rd4roLyCY9UPaomxXr66OQN9/uaUf9RqfWlkzMo9DmWafZk/9e/deFMCuRtF0TUng0DshFImcoX",
-	"h5W1roYyG1KN7oxQvOcZ4PjPcw75Fi3j3HlMFtGN+U2+FFPwmb6QjQhUBCp6z4CPqssFEmlevNrF61yW",
-	"qlyeBxeEjdgYD2G4Eid2NiXKxnC9zsBNeuTYWDs3FEzb0DeiGPSroNlmIzDsAzgnc/FkWIdhUMk2VUKx",
-	"coDqsy2mwhCwkYTNM2g3s7GOA9kATJcKNMOVxLLdOl6Jq9EnonlEHtMV2QB3Iq51zq49E2kGLVzIS6EW",
-	"4D/MIP4tXDOUWlLvsZMmlJtydv1GIelbqNEp6mJoVa8g8s8aVTmQ1wIJRZ9fiP5QT5qc478MjISjKbl2",
-	"DrMwrpsCzW6GYuBAR+cG4J3QqGcAJTjQdfV1TXm+rqPRTZxpolJ9PV4rNieUfuG+XwDoGrnexEuzKujQ",
-	"92ImsC+c3SQmcovnsnmbzAT3EcFrovBEfW8Q4UTbfX0SQw2txOr21S7u6w21aTe4MEi+Xo+ux/jL41Kq",
-	"TI65s8i6xPMc1JPIg454Lpz3JpLA82nlDZSgdd47dlqvzQzZfnBwB6zhRijFYGKEYWaSDSvfULQQ7+/t",
-	"tTvsTFgmbaBapZjHHgdYcXcBAeV0iSqsBqICxv7bv25q6rsVLhH1q2g9Di5WOH6TLMhr0O08etBpuFdW",
-	"ey6sdX9UdmoHKoNa2HKiiNPjCkLMtvVgGwPF50Bqe4qyO7bS4DrqUsXECLS4rOQphxC7reqmas/A0EbA",
-	"0u9//4CsBVnsndte7PPjx0tBaV7fDHpmkihuwWPvs4ef7a/M+Hijy2x9vdGSW27RPgA7EuhtaH6QSvAr",
-	"DsfdHVsgAuciBjfx2vo6JVjAAP5MN6QjmM3XZNNtGChHI7n36zaT05m0wSmbst+y8y77DTvf/fGH60OW",
-	"1uB63Hv3KsQ1pj1VLwf/7v34w/WP/0ior5/tf/rp9h4cmS/nQPNaoLJT56K8+Olv/tNzXoLTbG4TYtYx",
-	"9lDk7QRlIopmUj01F8R3wNL9cUHdy9lvQC8EUSl5e6e1Cz+vd7L2t+ftpAYo01N/5Ak7T1iWsPybQ5Y+",
-	"WKOKby8SFhVL2MU3h5AzXZqaBoZxi0gPCXMY2g66YUZZlLHepNu9L1iX8CGlGhQkSSbsvPbOYZ87t14w",
-	"pZIx2l1lnD7OWM5KCccg6Sn3TLAc9nUh1cUhQ4toKYXPdXsOHVfigsK4KIE8VUA191QuBwN0HcaUR+2E",
-	"XdT7BRaCkbAA4H3Bfst2/Uzsv3yGAONjfSXcxuI//nD97bmbP5hwcT3uG24nNB3ho9YuTr34tvXT3/39",
-	"+Y8/XLchfnhBqb4eDIywVHgKW3BBDX7Zpt1vGjcicTMUMuyPk0HkRrC4p7s702/30iT4i2E0Lo0OkMZH",
-	"gqsZly+qfivZqp2hrWQrHByAcx3D+X2A/8XKKLw+GuDcAzfiNT2h8MQ/812Jfr3w3cFnf4j6hA+e6kn5",
-	"8ln4JS9F9eul6yj+eHI9Pos7O//whevvu2QrCnGfFwm5IQxNCm9PIyx+RH4ayMKK0iQeR6byUItUvxRn",
-	"XkhjXbIQNpiUeEPAh7RAy3Fo5+CnN8KlfYGJ0puG9/VQs5J785y3aB+iu064++jegpsKgXEwO0r6b9MZ",
-	"H53dvc9u4KTzb1FltLv3sFln9BIZ000xGW4Q8pNLzO2/wLLq394kigjmYDS2CyLFB5Oi6C+UqwudvVnU",
-	"p8Kr7OZKlbpYFcC9VDSjmuO++TrnBxX6GE3hylARWtUbyKJjocebRJZjOyvH62pd3NObSaK1pY0Oyp6T",
-	"f6KD0rDwbnGX4mLiR85VETBuZht68Gm9oW6yzmYJKivg2Yzd8sCASF2/49suwLBEqWIklTSWqMsC0cLJ",
-	"efvLhL6m3PIb7MowAY1r+J7+OX+ZTi/LXF3iGam8Um/msnQ7kErLEk6QJ00dJRrk6XVRoFGwXT+CkL6/",
-	"URwhFd08aJAyz91kp5xiySZ1/oKYxiYIn/6MNwMWnZmI2cHNKDP9CFZA/sx1fOOTuMw0XsdtIDUFak/q",
-	"8YdzWdxQWnGMWUCacMYLb7uGJ1faY/XW4HtAAzM6lxcTPTF9KJ/eFEE2dn5ZY2cvwKZO0TOLsElANkCH",
-	"rOqnuLYlH+vCJ8akrwtNCbz8r+/glZfB8G+NYwOtR1Vzfdg91XKJLWIcwcYpAzNNTTY9QBNOT0WpodoJ",
-	"SyfKeUj1vQsayDNniF7unZfc3qsYVJeFWWnS1HixSGnb9/ZuWIYUA3NYStSWNqRXoW0aoT33mYy8CZdq",
-	"mPx3UZkIeabR3aFyxwOLlz63XKoAB5oOpCgKUTaDfY4EV/0NQxG8+06TSQq+AUtqiBaKMCM5ISzkq7G0",
-	"ZxJazZuhgeO4RpytSmuK3za6Wibu7PvjFOHlwRH3kF23gU4h8wZoiub8XLDIFcJkmNTZNYmowPyOWE5T",
-	"HduwGU39S3K4W+5m97IUY06LcGbF+AaZ4gv53USHFOhjXgplyYgzGYNxhNcyjydM8GzofgCZGz2rkI+s",
-	"LkSJ+HE//gOEG2SWE/hWAyCRa7c/uk1nfl+p1YWreMMKcKi32yeq8oY9mtkQ0aTNDTbq/EyjzftGnxdi",
-	"1ADT8vSYPdp/8JCN6QtGDjSm05C5vdk/jRJTo4NQqT0wluMsUBQhvREJoM1eCwuwyZ9qRE7ghcyZBG28",
-	"2416MCArBYN7wOXYpxS564KxwVCfQuHG605VIFTzfLobFRtzO2wcjvvAseMLK4DI1b/eduLa9gnwKVYz",
-	"WGLnRxNyoDPOHnS7CzPETkxzO1+8evWS0QcIjV4LRH9QS0a3323MtmClbcpLdjbUpWWGsG8CJXH7B2pp",
-	"7Co9mPe+en164vVwU+/+G1fm7/xJqQ6Q13kjxFiUB+6bA7dD0s5WXRGwKgoG3/oxRgAhSzzIahvn4Ps1",
-	"D8grn/xXWnZeCv6mGaYX475F2Vx+ZssfMM7+6uzFl+wlFWJSWU2ImjqfJizdQRTMHbJNKPxHuF8Z0HL3",
-	"KO0pOJvHZ18h95/SF9K9PXDF+Ui4z52hIuD6ESO5KtqIxrVqZit8xA0FpstmzLTjr1jr1+1G5qkJ7w4D",
-	"gN3HdjpGH18V8X4+dt+y60q4KmtWTcMGBbc3lIuub5KR8Hor8eNvmtU/uLzp5ZmwN3HLj70pfA72EmkJ",
-	"Aawi5vShI8pKVHl0beU3JspLmUFwpTP1NsT7kChXrME4TQobxoQ3h0emvUFZafqg6J2U4gaFQTe4JjLm",
-	"bOF3DQt16mvaBB04FjaTaiM7lAtHDzzQBRnZRI4hSAiFH4SMFqfo0DhJTwRVaQXmSW7PqBRK3PAey7q+",
-	"ou8RpHX7gUhNB4PyEgmzKRQQWCwblBFAHbavSmlFSnQUH4ATS8quhrIgKpFzy8+5wXnjNP3nUzSr+3h1",
-	"1sJK4HAZAL140L3vUn2cgqF3+whEvlkPmKpxJ3JhwxsYKWEyvnbl/e8XWEUFm2MWsTI893KxYa2htn5c",
-	"ps0KfrHtRASMT85JfXGhmdU+4GQgL5ytcsPcSQ5bo1rIlaC68+AWm+BahIaW41mQZ8iCPRenvd7wjuNl",
-	"KYnKbQDvvKFSmBwOhMpm9PmbmIM8Z1TfKsiqjGdZFeJvF7DQdezaBr5Xl42vZpaFOhS+n6l5HQQuYk0z",
-	"Xixw9J0oTP5LaSaW9HXxF4vV1fWSc43FnasvXxJ2TPNOLAQ3qNNvomZg+UJfTl7E5Mthz8eeXYdA6aAu",
-	"UjVqDBC2TJoovT/wCYQ6VIXgkIHV50eoYjQPWQrkbiiKPO0pf9NU7JXH+kxcDQmbqIG0FLCkS2YmY1Ea",
-	"kbvwKN5TazXb8cPwEFUujSgGsNSJbTQ3uJn84LeSLd/ztQkKtviyVqF7eBrX6559HarHFZyhfpsdU6n6",
-	"E7PEp4+INRJqWE+lrxZEGPOLvhGZVvkCX8oBL2lDsHMxlCFlgATBESMQfJQlN5YCC+rRRhP1RumrBUDG",
-	"S9UwFXbXPBiXtOxCWDKF4EhbE4X4GTDjCdxbFOVJ8tREOYj9cGcnlI6ItxfQLlybBjcbB7sAV9/2tucG",
-	"tvHKnpSFY+F2a2K6A4VZFy3Ot534JW4+/mR7+MpHO24oFlB8G3f0G5ZTWXPArv/7f+jCTKKyFU6gjE6v",
-	"y9/fjnEu4e9Y18j++Qd3IHuKj/REWXiSl1M2KLnzzaM0AJbygFWXCPDBUH/CSjKlJD7WtZgD1uipqgx8",
-	"NBOLaJIa3xy4ZJ/w4uSMNmpIPuHJVE95UBtvZgvNgPRvHMz7DGDCnJzFs6wUubT4PoHOgkoVIUVVjj7t",
-	"mUafrNKAD1M0RufgTqTZBHRCED+aU1bbRakfbmbepqDA/kKgWVo7RJAchKC19SC0ZiNZ1ygVzCwNPkvQ",
-	"+I15nIWOTHocM5f//J+3kq1//qHRYWQxFq8/kpsqApyviA+YdNZtPV6LxQmi/frW+QaReLbWsP03WrYy",
-	"2MzX+bhCClnn60nRvHBWXDcvx8J1uu6u2eZ1t7+ek8J1d6v6utqjs+eq6RSFSQvr7ufFDc0NfX5JmgJo",
-	"o82wwtEh9quZB1StPC0DQmrLBQIEt2cyYZLyIdNlSV1Z4FkwC2wc/hfdkNvz7+aW5DQ21M1i1lcWXo/O",
-	"9F4ZfsMUbebmhJ2cFPbJpbhRspJsiA4ICDlDewMRLJCPJER+5+J7RRmmnp08P2NKiBzB1nhmAQIU0z85",
-	"ODbOiM1jGS+KA2YDFxBsgd6KmzC0/pI7gr/pq3RRAf3aFQ8q1JC1mmJ+QK0Ed2NP0YcoxxFyKlXjBtVC",
-	"ZASKV6dRtw8rbh6HmsLFnLOUOMLU1SHxglT2numw9HdPXrGdy90dqtbsfE9/9GX+LkU3DuMZB3gMfKt0",
-	"nIFB5rjxdr1ljP9N6sl4I3uflhPVIbdV8Gxx3nMdnqOPDCV8cQkZwu9YgEpRt0XPQ4xfsw/GGmAsq2E5",
-	"NtZfLAJnfzXvILUYoH3eWuACKzwjOw/YvqaX3gJfplfxhsZvSDRSM247G2ZVuB3nnNWogOQG7Sxook+n",
-	"cH0pONC541BR9BB1FMe+SkyNJS4leGMZr71YF5ov0nksyDEL75x2wCm7EQzSjTBtyNm4Am89okKrb4q4",
-	"f/6qXsewEQtzgYFyxyZsSqnsp/vxJfqo2324++jR3oP9h/vdR492V7kvbZihAvdtf4HfmBHfLZeO0Qoh",
-	"AKZLKph9zM4LNw3JNEi4a2fuvYc37511A4K1HqcHo3fpPB36IpHr2Q0zt9djqP2wyPFcRxk1lvq8zrhy",
-	"1TNgRJ5Zy3y8ZkmFp24LGMVJYZ8KkX+AxKO4OTYVZIjRupO8o8tDrRpDqpCbQfqjq7OwOru0G/lNU5XO",
-	"inQbLpWzjMXBUp+uDAFBA/JMsdgXZcFIsTFfevFYTkXmAkbueM9VQuuyEvFl3qC5cyLcijXygA0b6uxc",
-	"JHbukrUmbBzyt2RiVskOnzbBt62BNOQKQ6ZZBB1qRhbaJGbN9Xj1OYaGH/uvl2iAv6wlYq4D6qxIrzKz",
-	"ZqFvEWVekfVkpptxJBIZTEJGs7UZKKjwKBSm36euinfVg5tEBd3G5L9v6owokQfIpjTQGfQJD4INmeXA",
-	"yJN2Fq9V46pMCvGV1Dczzbqb1ixJhQvi8SVkYHZacTkSGyoSPGM1r2TDMcy7TkJXw+Wyu71n2BUvwXiY",
-	"EFKXf0UVkIa62cjj1WYrgsJsqQuYx02A/YNaCgcRyiXRpDYvl9o4OUQ5UXDvkkW1c0vi+kbIaw45R9rb",
-	"S9K/GpyMkFmuaiNfb3AbJnA/nSgMFGvapL7BBVFvFu4hKFPrr58uFSOM/YmIbGYu1yWPE/UUWwcXhK2k",
-	"+n189hWSx5smH1w/MKCSpTcts0G6Qr0w+v09rrvNwztPJ1FcZ4MDDokTHgtoAcmcwwwyYWPAuuazgJTk",
-	"gba+ZqQGbrTWsM5ciZVR1ptlM6zJXWEFw3lphD2Lu1+tTziuq/jHifJqlrvniisK0qChhndsLMoqp0Hy",
-	"/oRm3cPctGrrTyC2/gHSH9xxQtBNQ3iXo4PPZdpcMHs3Bby7wfX8IQl2TH+XlQooJe9DXAOU36xJaY7S",
-	"wWSvEdMPNbtPQ93rUOtj9AR3rM5isn3PhJeGUKxHPBc9hf4uGJ8Kxhf/yXYo3+6wJ+BaHnKg8FD3PVO5",
-	"W6AvT8i/w9LQFsTxwg5JD5zi0Jcm69TMM2mJ78AIO5GTNw5oHaViBIU+luWUcdtTabQfUzJuhWLOuwxK",
-	"uOA6LChy8vXAPmIIcJU6eaIKYcw87qq0FcxqPWJ3g80cZWlcA49i5nacJ9xC2XIaE24cPQIWrE3C/XXa",
-	"sI8fbAYAEa7aJRdrNaCFJCkgE3wQPdEGfEdNY9Qg/W2glJ8TvZymeE1Ug4qzuz0UjcUGu91FHOs6efLy",
-	"BdaYyOwfZn+N+lYzfE05MqLRLZ3O90zNdrdJR/Jy2ve+dw0pr8sp0GoryshBz3q/N8wMDd572y5DKKLV",
-	"3zSX9VpBt+RGeOuxvFRt8ONZetTgmxsEj79/krhkUUYjxYtw+96r0D7gOsW4LefpEtw1US8Fb9PQo7Qp",
-	"ma67qVDSpsyHM40FFVOctewmUfLBxEVOoQ0xpPgc3IsMeln60HWpWForimuYtjE8jbKhRIHvabza6SHl",
-	"A9YlU0LaIanqbmlbzfdpvX31Pvl55li8G9gQkJOTPqmkaXaNIpYtpFR0LjPgAV7y7I2wwCJNPWZs3UHf",
-	"sNbJ8Vc7x8dfsRAR5RiwR92f/uY/7e522a8TcJfd8ZxtFVfYPqS9ySG/Hrr6m8TzeNQbZqQ3dqC/ecCt",
-	"RbZRkokZXOwr+ENSYx9WaR/xjdI9pccCtKm1uAYMOmhRXg9YxEJYkbbR6bfQ2JRWIqm1ZLXusCPsMna1",
-	"p3a7ri0KseShLHzDS8dBQpaOTI9GWrEx0t6MVLpPXh6xvW6389k2KtTokJo2Mbwcw4+zIYsAaIBMOzrg",
-	"PFBSP7dpk1+TH1eDoklXe4NdSfSeAPRtBFqcKBiGyP0uoBnA5NLAKXtXpEYFdLXj1macZjKf1ljMvQ1B",
-	"xsKIaz1pOmM1du1m2YubkkFWtg6hvJRyN3rsjRzSVgBVHTXC09RDei74pcDgIPSoIqQidCO4MbrUTWAx",
-	"Yz+z9S5e4qgb71wPgj3rQ5YhkGqpR51bdFULh/i3rt27cE2LEhniV8gbvHxxRi6T2K7Z+V7m73aqL02a",
-	"BEAqD1DVqtY905Mix5iac+ESqCHs+zx8FcBtDQWjgDeXFSCvZdM/ZOmML0qI3preEOhqiXuezNE3j7QN",
-	"6GQ7EMJzQfKWnZIaM34vJXsuc/oduv+9L7jWqpy7cRjeL8ur7jakx1v3o1tLvecZP+cPc1vubjV/zxVG",
-	"yNj3HE46xZDCIvvYP6xlffOk55rrDb4+fv0c8Sm8UtJdYPfMDDmmYDHKUJbWXqFndG16XNraAM6HXJhU",
-	"qx2ybuaeV9dexRqF9fDUNkFqW+TFN++LOHMyG1Z/7Sw9MZv0l6h1W3YoGwFqN1K0UevmZnaSTU0Ks+l3",
-	"7wyN9yzTY1HDXpgoc1ChVuDUHMAGD6a4A5edyCEwr2nwx4ZOJ8p4RAt6QA2cUv34CK1h5tS3gc+OqCHo",
-	"b51kbuxt4vmFccExaTYRPDKFuKobgHAoif+NIxMrAKoGcKkq7X2Tc3exvrdOqGopoNPsoUGp9S5GJpeH",
-	"KczPBDdmEdz8illyOgkPN7VpjCZSgfnc+65DM/VvNrmkIljiVO+uwxocgiuFL5xYfsi6da+K+VlQ2m4G",
-	"vJ9sOV3Jht1zpTbs3qolXMhXBn6yGeohoDt4JhJZo29Wg5+F5Z5z4vfTUq2fn91wXJKKJjRS1Sqja6PY",
-	"8q9/62eWUuG2TvfaLsqdPXvxmP22yruLPM6zF39gv60y4wJUMsRm9k2eUtDf2ePK0bcCRFN6hGH8CCvV",
-	"QnhiC36ZPYUK09wbUx24FEToEUhVH+2GVL3Z+env/suVj1nEyqFujLujr+ehqxLfqVruGCZHIC8bh1LV",
-	"EhDS2qtQZ0IaWo8xQSVFTqGD9Loac1Qg6alqFqpu6gHyk64Hhy5xLgm8Xjt5wKq5jKBNyolCuIB0JIGf",
-	"c+GnBiPtRroULji2CkcVBczr3PzVUUqgfdg7rkFMYFH7nu5cP9B1r9aw246o/urB59DSWV579gybpLzw",
-	"9TenrukzCuk6kxeK20kpNkdKt0JZcFDwt+biNIYlXuT3MAUhWuVdaWYsqCqHKNRzzF2zIDGgb84M+d6D",
-	"T+dbO/viaHvvwaesNRTXFewgV1ohliBiIOlB1Bn0R5UXqjG2o+75vuDWW0eEXJxCZcSVHAhjFyjwXpZS",
-	"WafbSBAeEc1Er18dk8lfw6ishJfco00MJyOuENGEcohDzIEZ6iuvG2lUJ7iroULl8mwf+no7oB2UdOS5",
-	"LKRtzu83pu4uzjOzVKcA69GX+bK39LzhPa1howD8+tXx+iJtqKePc7vAOZKPKLaeK+tNdgU/v2fIq/zP",
-	"aGEAUN/79+8/qgwZ8PweZlk2ImADuphupFNaCapBKlbl9kcdHRrf4fnrV8cHDs4HitT2D+MV/gjPTXs2",
-	"izYkRfp+/902/bFX/fHK/3Ew90fr37/942+2v5l73m5MowS978M4GxcJZiIv+RUvlimX/FdqIwVyVep8",
-	"upqNlvlWfU/F+y8JKWBq+7k6KPF2m98y8SzMUaxkjmLO0oAFPAZR5xukMjK+7AbCty+y0vUiqnxpv98/",
-	"9GX9EJ2NsxqtRf8ayd2a6ZCSZYSwnrBpZdhd2Jq+7ar/jSsQaa1vK+/OaliBeURR4EA+oEtQpdCjluc1",
-	"csst9XXvuA/gGTQ3qSsifaKP/ydxXUmC5UkDQ3klDXmzhK31QdNE3NYGe+48Xzf2xd4k6omutsVxT8tP",
-	"e77oBaVd2QxH7Ca2YXE95piaZ6IyUVoulZ2u2Ry5/ZqNmvNaq3W8Z/3y/R7KLKVzhW5GsRpXyUQ2SctV",
-	"S0DSoO7xrtAbjTwUAk3BIsMfokbNLkV9G05aaANv7+A/ld4BipBuSQQwomj8a5rJzQRN8c3OEiEdypob",
-	"5PZR4FxcvFMszlmWPDpc40zSNomGWNvB9c2yvqmnaa/WeB0HWRuiDAj1NnvTN7qyaHHMnkwwZbjL1wS3",
-	"dnWe+la2kvDsDBqJfj+jehv6fAO+txYysZFLvG90JZdRNbHOvN8w6qaizevd6vFVN3etn/p72IU7+BMP",
-	"3nX+7yoaw7oICB9Fcc904ithE+5m7q64JTfORXdDg1NQRXzuGebLsagce+0Q2Wa6ewPk25/t3rmFPYKT",
-	"VZ12lwgT0dqqOB3DWnMUgQHmfbsT3XazyWjv6vaLHQvv6i5cf7fHF9TKGahdWKt2bS3ZF09QByV4Dizf",
-	"a7xR39xgr/orcE23O/j6jghLuHOXzgM52B1WiU5cPpzZVm7NWXzpBR+d9KZL4JWDNZ1BhiiFYFZc2ygr",
-	"16EDJralLlg25CXPrCiBUlFmfn6esEIq5+zGEQeyLCW/EKwUdlKqmTTpwcV2QZ70b3u96253G/77Gfzn",
-	"c/jPMfznCTzcfdrrXT98uiDR+ysQLm4YxXwDCeAmAAELzHHRB5GYBK7xeqJyZnWIbMdtpZjLDFpB6axv",
-	"c12oBjeZHm+ij4PPmxrAPjWP04isFLbDzob6SjE0wmmViUMmLcu4cn6fpeDOx3lNTypqMfFYx24gKxOx",
-	"4365IQME/ut9tJKVulhAHmr5wel6L2QGQx1qmQnE0DcGEdNpwcHtHcyGGGBS+cHQuYpdX1jLqx329/YC",
-	"Fqu07Q47CTkY0B+XisH8OtgMXgpn2fJVnE/J/qon5baYCkMpyeZDT42whtHAjSgGfWplkWf+RjteOlAo",
-	"TAMDHcXRu82eM4pNaFVl2LnEnGftDgs0Hj921SDDFE0gKhwk5S3CVYEbIDpBTJowHfvd+65hVOlEPb1n",
-	"UDOEXdrv7i/+qpwopkua+w57JvilqO6EmcPLWtihxC1a4hP6tjvvG9Z7f2/TnPMVcbgFju3roYZJQCBh",
-	"DPqYGFERt0O0/invMk3u7E5bxye5tMyWXBZ4A+sr1ZT97uuhHlUVMkgWpi5gIx2wlCxOLk0daqd9njpw",
-	"Jq8Waz6RXaenHpNl/sBlG/bf1nRYfi/QrkurvZb2FPWHF2hxE4UbNnXJ4VL5XWcm5B3eU3P3ZHJ7FLra",
-	"E/ubbolmNHnXkUaiWgp1m4r9c25E4dLjLMUJg3Y/9x/fEDepDgwxry5DB5k1Ia+e0cexY1RDelSrGWSt",
-	"xAS6kkhdTr5NQBNhTJCFLfI4Yn5CEk/bKyhuUnBtxg6EjI1rTfDL8LXPS7n+dqQKoExTP2w5UZnn3Gbu",
-	"i3IiKh39lVS5vmIYJDeidD1csd2k2+36GQECDWIffq+LXBjrPkCMCZjj5mvr0kO9bYK9ESPErYwKr6ER",
-	"BDVctQhhVqOdHzZerYPxlEXuYcs8iOtn5D3Q7N4LmW4Ek32zwIIFznumYdOcuchOb7jJxaXEmWMtxX76",
-	"u79nu4vyFoYTdsNIMyMKsSAw3qew9y2EIywwfFMbsQbLi/OHg4YJiSHx4rYXrv/L+MA7JzRorNDocbAo",
-	"cC1sUcYdXaIgThOjsPlKMP8/SIgz7mTJVtk33004ZVwr9LoOZvWOn7lW6k9PojbrbyKvsrlXZ6E39RfP",
-	"NLmgRUTrAwATbQpsL4DiNxPNmovbpPCbLJQgBGHpQetbg4AL6XOpxdR0JCkiGj827UVMfz++rec/uBka",
-	"1WL9S9iTHnu/OZiUsi4pATepy/Q2kDaBox426k3DSjfFypq9Y5oTQhsPXxq+9Tih0ZqtLSDMYHAuj2mO",
-	"4o9q4UbeRBTSWVa4XtUurO+B2lib6BFu4/hwTCYyn3cP49uDo+2n33z/2bvt+Of+Jj9399416oxeN0aL",
-	"HTGMF0Pf3UznIdP46GLnGYSBTdy/fxyPR9+kMzouJ3ct0HD9v7b/3998v5vcX9Cfr3gpucoEpFstNs37",
-	"iwlhd3fMt3tp4lKxUG1sMFFZ7E8fPCbOHh8wUBqydKyvRJkmPWVa122IG+7++MOIX7euE3bdH0nV/jbb",
-	"JcEaf2I1ZsSLouaATTG7PVVzPDh0TcCu4CV4JbOWIy6gogCV/c5up9vptuPm2W9YtvvjD9eNYAPrplnK",
-	"dtf8cEFYyMzx8Lj8kJMp223c1F9VFGEmyQoCEBNx4moawXwRzoQjTc7BZGE8dHzfjrmBozioh4Msu0ld",
-	"715SQffrKZanvocwiw9x3y3GF7iJP9f7hvivlUpmcbxRlWa1Oe38rx9jCEX3xx9aA9T/ABfqIiTaO+6P",
-	"G15DWGETDF9jbvtl1yQrtbYRCDTRiRt2a/15XcfOGO/ONXxbQGZqXgm4Zt/++vFb0mZWKlCfxyeknCKh",
-	"e00XkGXxY6sjxFbO5a0FmlcY3HMco0uihVNXAehgXknjMCrWUshHXISjmKsd0vwmng93q5+reGWjGDl3",
-	"MCOo8Dr/sqZfSrzHPhwgrtP5hhRJjYLjCC4N96UPi5+Jnz8XmDEGblXyqmswIEZy8+UMuV/38M0teq2i",
-	"+eGsUEvMnev5q1MqaSVE2AMOFCGCZFpZqSZSXaSsdQxPY/+AuEfxjekqop3oyq9/dYYqT0I1tQ0TVTkz",
-	"rhv4Ct1kI8XDXl9TU1/bFRJCvYkNlvZWAH4XwEgENc8VB/LNzWQzSPvliEVfujDG2mcJI4sB6wY34wpT",
-	"AiSHmyIaLshg2V3CtN741vyg7snr3AHeQzFa9aZ99TUGVB5zlcvcZ3vbYE8Bdq5YgOiD4xA+VDMbam0W",
-	"4Y+Rxm5pNS6ylU2MWKBzHvFrF31JUaIQlFMuUHgUvLwQxjL8pLJHWV64EFOM1sLaGGGoTVSOSiBpWOZn",
-	"K2b/HGqY0jYSL26imdVWNOdU51XD2JR5I8djknPo8saU6odMjMZ2GrvRNxnAJqM+Pzf9pvn5l//69ten",
-	"T976WQE+dzvjRTYpUN3lKYSZY36benfDWQiRxqsOydfhw9lDUlVRG+7CfRJ2YRK2tVuNxeemMeT+meDG",
-	"bpN21rjtBClQd3euv+12HqTsp7/53+DX9Nu91L2uBVsAE817CtUIxIDMQuugbtHpHVpHxUjInDNhGS86",
-	"CfurTk8dD0s94lZflB32OXv4cJ+19rrdvTbb233Q7njVhu8bNLi7A+qCH/+R3Ll5T81rPCJ1xjWoMGib",
-	"M56V2hg6K5jcttAXLfzVU2eP2wFjDx7XhtFOXB42GC+Vh/jJK8XOHh+6IEjeU9W20gNPTNAmhRuPgmKD",
-	"1sSdWB77WwCQeRp2Q1/jOpnObDi4m33T8Y04ikXx8dHm9gGfQWdjJiPoGz9Hh2rBvPM3E2WpS4/e3lML",
-	"TxLjI42mSm0wOpRAk5SuEaCRLgUEx3PFhrwYNBGtDnuC00FiqE/0y4uiOpuGSRWmo189BjS5wui5CJ6B",
-	"vMbIElMF/wNoAW7Ovh70R4KrlLVgAUgpxUagcDPkLXrAvuJlawrb5l//9sd//PGHt//XD2+/be39yz+1",
-	"E/Yv/0TTgrYOGE6haN8w2DZasULB50jVHIEhthTmFFahp6r1S5i0osRphVeMMw85wEoB90aEjecn5l/+",
-	"iRD0hvrKk29hrBxhLVKxVGlFg0rbHfZUl2x+mO4o9ZQ/S3iSq57C5paWtrXf4meP61gCimJJHX2gv9zv",
-	"Pfx3Gp5P3W96bvBfB0VQW5I1OfFAxb6kLoTfJ+ry7LvS/vXMs7nfew2F/t3Ms7nfc4VqDxzyQfj9Esb1",
-	"YvAcRxVT3hfjwJxvhBzkqUK1o5mjCYkjJ15cH8iiaIIAJbnZANrCGsG2Hj/kXbJVpzlNNthZE2W9QFJr",
-	"eum95GbnJkjEy6YI/L0wU3jloFu5+7p5u9MJm3G1FQhb4ml383VAadcx0bC7+Kxm52LR5dLiyjvBEfXz",
-	"pZS2riRAuF2IHLTs+DH1og4kwtJo1AeM6qa5QrYKPkZiQFk6Osx5S7H7B4zDHegiq650VeUQk1YLlouL",
-	"UkCfoawQOST5gAV49ID9mpUImmnGXBkYAnmE4f0Eq/Ww2w5OUpWcFIlHe0nTppzfaCHa/2bi6GZB3HcT",
-	"i7205OrIbFfz/DFE34VsUko7PYOR0IjPBS9FeTSxw/l9nMJjXco/I2d0wD7Hb0kwztDHzXvVMXRGMwc1",
-	"V7mEpU5VhABvYHxKa36u8AW6R6aHzAhBtxRl1JEafPDS620/2m1ySnOAN7gUKGlhlyphYmjteOvdOzRX",
-	"D/T8kLB9cMkSJWEpm9gFEDqPdz4/16Uz3kRap8AaJcBmmp7itddzua0SMv1QQhfHcMYcIONZJsaWq0wA",
-	"Z13IbEpJZYyAWfLSZULMNlaVsHGhrUkcGnCM0mvw5E3UG6Wv4Nb4w5HP/gpVclVzvOypnvrkE2LMaJE8",
-	"eC63xOV2PvmEHYX+MZAw9Wg8sRFANfGgWg3kxaQUOctg2UvJPcAmLwMOkmFwLBVRj/HkvJBmKHJ2MZE5",
-	"RxdxrKuad5ocGJt16hhCDr0ALtX5DcMTxxCevXiJVKynxqXIRC6wTq9NVULkfi6Qrf/OJTvOvdumS97j",
-	"1K2EZd9TtKAuy4+b5UrGKcVYcO/fDIyZV5WlOLu/+hU71upSKHzWU9uEBETXlAtBLwUzir8R/QxbfSX9",
-	"0wDk0kpJTj1gQcOVAoFnjBdXuGCltDbAtBCbKa55ZospM/I6ZOjgBcvlBe5axlrpXnfv0+3u/e3u3qvu",
-	"Zwfd7kG32yGd1L9P2wfspTb2ohRnf3jmT8lIgkSFwDEmYUZDNXSv4Qe5A5ExFWrMAORw59+dG5TYQ884",
-	"XgKysKLswNRUyig8f77KId4vLTiW3h8yIedagLYvBQP7EiPaaDrsVJNXPOz18ViofBtFMg+8CA4itCXg",
-	"lFE2eTwzLCTbplpJ4ifDkbtuDEtlnu4ARn5K/uZQJOeWn5N+Xo8NpohibO/bB/fZNtuFWXJTlBVSKJuw",
-	"v+KX/AypEZOKENISNz12KEZ+enBKIOkSbBMkKDIX/AC8RihxBWfk+C4NS/EmTUMSBAcxVWHFQ5fgu8pC",
-	"4j82Gk4PsFGxWtVVWuW58lUrt+SQcYMHf/ZAVzBBFP52WlE4tBxnlUq12RBXpeoStykO9Uucb9r5A6lg",
-	"ZCdPnjzZfvhgn5F2xnTo9LgokoyX5ZR9yb9ESGGFZaaHeCqcwxMuUa4F6b7EtTTYazLF48ua7d2TtgTY",
-	"L1bXLlFaA++EW2pt29h7UBelXlvAmYEdrESBI3LcB6O710cfMEeciQgY1kqbWJMDhqxJChwRY6cB/MJV",
-	"BZPkcipwYIWLAjcaSt0k98P8ZYT0g54I2Jrf5Xi1lNDb3PiNLA3LdUZXYJgzujfPxaHbvYaZoZ5QRRRh",
-	"Ii+ULoUfjB2KKcs1loVRJi7tRsGtKJmDrjeM57krQUuPhFAPolvYJP7+NImj7ybxmhy8HX2ajFLgTqpo",
-	"xwHbZVazT/fZ0dnxyQkrhLWiNIkjfVg67QDb0Yf/HMB/ttOEhsRLFCmcoE5FYX9hWdYi7o+lFakC+fu1",
-	"kgg7DTW7QDqoLYql42XAr/f3AliLTE8dsUIa63YjV+yi1Fdhp1EMSSv93ZMYbx867J+42y1tY1Y5XFdU",
-	"EIz5BcwcKFikYpRJa3oAk13SrjxwQkDKWvAtM/LP4pCYL+wQGhtrspNLmYOseRuPGUxkNimNLh3e4RgI",
-	"gp4YbB5YNyWubd99UotvI66mNEgs4et2EqmvMOoCLwbjo0fwY/zykEZBJ8IFcFgxMkm9uWqxvhTX9pge",
-	"tqnTQ276I11CIAervvuCm+fwsN1hvxdi7Gcq7Ac31t/WWrkaygJ3YFUpQ7f+iYDcLjiXWJorhp7+abSQ",
-	"bTqCWDyq9QDV16BLxPl3+WouxKEnpa20tvaODcAd7I40KpQMTLRmY10UxHNBG3jijvxraZge8+/AO7Ty",
-	"/k1f8gvhZ+wQd48duu0lM8FyiTSTKLiZCEx9g3+RdErhUm4BMeXNfreL+x43PW3r4JIhS58rscUdSjJK",
-	"uDNZhGA3e++N2cxByNtWjG0SMdimDXQdc8UXIgknC88HdukPE7icw+Chskr8iClhVvBSxCeZ1nW/24Ur",
-	"GvMZUQxb+h1UOR92FLTKRDMDJQABSyjrRkPUDeWcniLeHFY7ZaWeWOE0BhsIZUcuEAmDdgUK6T3lAUap",
-	"nQPoyFv6wd7iEr4l5sKwt441edtTb7e3t2v/h0KxrMfe1mL+3jLi2Yj4O4Kd1HF+K0Wzz/7UhloIL7si",
-	"/cy1FUuS7C17dvL8jJiz0u2EtzVZqKU08TbEBbVDlzwb6eSoaO+YJK4hcd2u9qANCUHwKCaRcxWwu7rM",
-	"RHRhzadFTRz4jFQIIuxZNRpfXTBmb0F8M5YPBrgM8BDqDNB3ScVlzcyrSaDiincx64yctcbCRTQ6AZSX",
-	"2RB0Satn4aYjJsmfva0H0kJ3kWnG1YPOTsyKJlAeIDENo9prNUBjPYW5yUpdCLelvZjLMwvH4oB5hlaU",
-	"FT8O0xYwg9we7ilp2Z8m+YVApSPuwlqBpOZqFs1xqMlNgrQ9BZMsL7EqVdNDhBr9IXARvqgw7LCXNM4W",
-	"Sa8Acpxzy+mG89PhIqGA0vqpBmmoogo+SjU+uD3lYKdDgJUsSStSBSmz1rLo2HYnzHdFSguk/TiNSHWI",
-	"54FekbKBjDvi2goFO7qnGhQ/B3Nx1J98AtytVuKTT5zdaYTWuXxEpm4/buSPoAsiD0HaZKkriSZbl2nJ",
-	"BE4avvYqj0JYgTl8e+rFWKijlyfM69E8xpyPH+WOXlcjB0GhUrEdsD9+A6mNfD33O11yUjSOAtNE4dzD",
-	"BL+AQns491Dk5DGoFJTIrPM/wNk+8uEbCRvxAtQFcCq9qIFW2UsNieNCLPR+d/eQJCWZRyHVegJb0s8U",
-	"dQi/vt9h6c5Q8MIO/wwc6A5srCn9ORK2lJlxuVJ29FgoPpadKR8VaU+h5kVpHwud+onDiWj7W/AJWiT9",
-	"lYf2SVxIhXqQR/sPHrJxqc8LMQKRaUyKd6nVjnv6mz8ZzN9C3FxPpS/puTeQSUVDlWB2SFiKLZjUaWFI",
-	"6zgYCIw5J+EE2WVOMue5zp0MBWcJevTpo+4uvcPQITwBDloXPqZwAuTsQnJrs7O3U083w1ppb6u3lXpU",
-	"XeRSsHz7kFo/PvuKZaIo8AjvFFIJs+M4C/xHuF8ZZK70tz6wwilWuLt9zo3I2Xg4NYhEDTUgsw5dGwqe",
-	"C5xmfLzb9kEQrqGHO57PTl13KiYR+kNN+8DreY7HV0cMEckbCUvH3A4PZE4yV0qdODjJxWisrVDZdPv3",
-	"YooSBXm0OPF8JA2l7iQDSDz1WBGpG6XxXiYliXPGMe87bqs998eDmamy/DphVyWauKdjFwjl5IEoMIeX",
-	"Avi8Q9o8HmoALKtFse1qOwd5rRT8jWGc4BV8anTHNbe4CmmzIzO25zB7Cs5cQuABdGzpC+B7S4EMp6zm",
-	"iL0RU1RB7O/tATl/0O2S8hboRk/1Qv4wOkq9rXD1pE6u6cs8PXTW64kR7AI6YnWsICg0bOEvHRMlvTap",
-	"UjNhRRGyAtF9r1AmnYVnPNO/3nYake0TiA7hLJ4+rQRqT4KfNuobkGq/wdgtr05Ff9NCX/TQFbPkmc8f",
-	"hRqE3c5up8tauBBSXRC2DVbFcjEWKHZo5Sj0VNg2HvI5cZrEShSMI7EIdRkpRZBeBdEXEdC1qnShUCxH",
-	"Ctphs6I748pcoSYxiIsokN2CFIKyLCpgMArQCRltrJ6WxGtnN1YXgwkP6QXPMcoOBT5KnKukEtRGUC6e",
-	"T6s5IsWk194G/nGGV13C2rW9Ri8qcY/UhqzlNyApmGm/taO2K/2lU8hROtqczjmK0j5HBx3ySDL1GlzW",
-	"QlVITg4ZjAmFTH4IKPDqXzcJYHHqFDITQDShK0dj4KW29zrdkDywFNgqWTienRw/+fLsiesgKsmnxKW2",
-	"kPC5nXxAAlvGi8IrlDyPA+klfvfkFXQO9/BEUUrGlL4ws3KT19tEosZh4DGdPs1zjU67D2zAYWCFV0gD",
-	"fqbmF5M6NN84X8QrQzVzkoOrpDaoTtMx3vme/ujDZBwgiXHd5MhMYwdxs2BxIi3blbLaOB2zjZNA1rZV",
-	"wlKffM3dZjPZ45IodVwyn6wy8SlPYbAJcaPMXc4hQoVcgvDYpfRL5Ons7lDiio0EqtCdFd1tQjB/EuTL",
-	"VrUVt5KtSVk4U6k52Nm5urrqcHzd0eXFjitrdtzuxDIIs28LUbegUpiocan7O7v0oWMBtw627ne6nfsU",
-	"8DlEY7NnIuHvC9EUmelI5B6AOYB6zQmQOhPGIE9YSADd+RJVIZ6x7FBSHaKYJ/nWwdbvhP3CNTXj27zX",
-	"7UY5RODPmKH8kzPKEx+wyhGAmiBz88w4sJswGw+63UXVhH5RMk7FC2SEa5b6rYM/foOeoiNeTsGNE6xr",
-	"AqP7LGZu/WM1crP1DRT1LPnCSX5ZouFHTAzhwYlrTwkZGRtn5/eQPhFwcFA20QrsJErYK12+wSWiTugS",
-	"1Z/GId7Mrclz17OVawL92hkXXM6sxqw3xNzEuxbuYuqjaRuFcSxchFgQWrgS4PTtZcFggYmYMLDLnU8k",
-	"EFd0xllj27vqNtv2vpMbTHTcdRBjffcT9u+Onj+7i/l/Fduplk09Sadr0hihald5YNK8g4GTCGRIIJSw",
-	"B937PVV5ss+uCktHOicGIIWuoBE6jchZaEuiCwleG2hpDtnvD5wGiJduK+TeCdAjxlEnsSet9FTYcrqN",
-	"ibfTNpsoK4sqbAZqNkBCRxoNnCQrRdJJTyltZSaM8woVxaCDtw1sD5NGyhvoFPMvEiYHYF5MnNcr6YoK",
-	"frHg7J/SqtwhOT5FhzRhTNN+xeaZ1TSfN96fUOr+6lJnNLWvFb/kkoIKlm3tqudLtvXl7g6ySAs39ief",
-	"oBfWwSefzKmTwcuQlGEoTB1BPazUoFNW5CaIRraEcctG2tjKQgh+eOCcT6rGlBEEDQjAqMLzDjS5zA+w",
-	"QpfZyvO77jVy6c47gzYyWSpU9A14LeHGCxlyHL/qnsjct+7YOXjaUy3SM7hk4/7Yyrwd+9OArFNPfqTB",
-	"SqVE2bRbz1D7jZMUozcZRMyDK2kLtRoekvJgi0awlay5UZ0D4bukubZ6jqCqyshT8NP9Bs/ApbXJfFFd",
-	"e93u2pXhrpitqNFhsyHNN4AI3tnhx9V6phfeVSViGb1LtvbXOfWf89w7kGKR3dVFXivuDHMip0Jr0Imn",
-	"ujyXeS7QnXR/79HqEq+0fs7V1PXO/Ex0LFAuOiqzuI5wk0QnH6Ra3IUReSNTDbipzqn6A1DNfCpgTwjp",
-	"9VqUsO6CuooyUnbgGaKI+WWEM6VEIiD6yDi1sVOxKXY+7SnwFYtedthT59GQ6dG5VC5c5+jLx4csBc4O",
-	"mQWpXDApUT2rU5dHE54lhBqrVb0HHQb2euPAuirTRRY8D1nLCAFKQXI62fLGlmjCSFsZMVftA4zdYw1+",
-	"HT1V97TgpvIDaXTiOCQkKlG5MvRU3V+CoKlwzLWqwRGiU7kroOMbNoGsV0+5Biofgzk6DkOmBV2PjNfg",
-	"+9YjO3EU7SKiWQEB3l6dIW/77VUZoJ/Wq7KG47WozgpFar1KA5AWVFg/0094WUhhbP0AJNWxQcCshj7A",
-	"Aat1YJ2g8fn2IWX6fOviekXrVt9C2y+9m9aiVubv5QD996AbRVXsrbyjk+YFqk7PTuUhtHWnNzpuMDjC",
-	"TVc6eMeijj6AYH+83G/9cj8m4CBpQF8d3d3u9l10d6+X1b9+laPW+g7uc4zVJ8vVQFrAT0elSghl0CoT",
-	"kfuhUBfS+V3nFJNKT/pOz5lSfIY0zp2rFL6mBVIvTuH87bPiiGGpk8cf4HwtYpcJ3PwXfqS6+6tLfKnt",
-	"UwQe+gs9g0e0FLRFpTUUEOTiijAfswcPvuvTeWPtw2wc2OwZ9UZjlzCQQgwoLrDysPOCPbpYOdBnZM+d",
-	"a04sfUgTx38sO5kLZPxfwvFcJdDiNJmPR/QXcESjrYdOYJkj+v5EusO1rqw7c0KXnMjKBxSGMdbmvbSC",
-	"BIhmGEeLIn6bEE5BADCInFc8fF4AktClvEAcJe9obYf+JvWhwphNiFzRmER/j9RX09cDcDSymM7VVRSu",
-	"WQ+HhhZoy6cYb+f4kg47dbXPdAMnJydEi2n4BRIlYrD7GDwXjt0SjgphXT2FECcIRaaVCOpwK0AlSo5V",
-	"iAuF0oAznqGaoO3oUZge54mUjkkX0A+Wb2rQGdQ9cCv6wDuBsacuhDWMB8u1C7uUNgkePX60la886jth",
-	"CRBCn5ueMpOxKI3AwaMqzHcNrLhmtpqaj7ab4wOwUzgA09p7CgTC1nThnWB9P5ygxPgAXeRsT5FpgqN2",
-	"AcP3lQg44+yFh/R3hhZH+OlEDblUGCRz7voPoRD73UdJT6HDVeowCU3flXYuX6cIt9za39tLyNHvnLLN",
-	"eA6vcgYMFyzUdxjiVnuKun9y/AV7vtsFyJq9vXbi8+9X4aoQguqQFOFact5F6M3Vd7sqPaA+0I7DoDS6",
-	"w/Fp2GIYmaGER9lxhQ264aVuH5t+iN7rK3EF3rGWFYIbrxzHMi74zZ0DXsDjKdUDeEP+Td97/aQHwQCw",
-	"B0H7elDZkXhZnWN0hvHVwiko4ADVB+G7kOmJsoY5jABfVdv1Qro8fqYPrl7xMGqB0tGHKU0fxbG6VQLX",
-	"pcQvURv3NeO+B9QSqM/6CELQFyo3fSVE3qdY+fTADQa6WyMDMAFQ0PtlAJyo8zmC7g3lxRB+03oqXqKJ",
-	"A95gQzAWLA0NHqLrIFTiwjioL64HCePMUIpBB/boXYqvhlMKsLoQSpQco8tSV6pyDsNJbjdxOkTUn/iL",
-	"4j15HbxwP9f59NbYnNCzwJzUMQ5c5qIZNmv3w0hBMUQs+api+890tgBK8CW3Q39qfOGEpTP3NkKK14eY",
-	"LLO9/w/G4nXXYPGOtRoUDlJ/f3eNPr3k00Lz/JXWz3h5Iajcg3UmAFJnomPVc5FL/mpKSZX29/bWKexc",
-	"k4ArfKIsmHb/QpnYJ0TOY/gv5VCqEsY9U+j3dMTcfpe9nxGHOFmISeqM1cVa4uUNVEAYSF9odP9LsTFz",
-	"eZG6kb388ndMjviFWCYqviy0ffnl7+5SWMQ+7LhZaNAZn0vFSRG3jncOjvKjePiznyzYOJFcmDDaRXeu",
-	"rvG7/A6O1FkVuhnYwAAHNeLlG4wcdPA1IddM4kEjBxIBWgB7EFxfMYSX+URCbMyVKDDf3xXJK3gsQiwB",
-	"J6dFdEftKQq/9fUH3J0olg5qd2aoVcf77KsPcLzN5cVvrm/kbvfxQP9CD/TZVx/mQFfByeupe5ZqXU/m",
-	"AKRgTBTZAb48FcxGhFzlBoyiHrn98Uo6pMA9Os3VKWfe8Z1xy9LqeVpJbyhdeVmv3WFzUUcd9rIaOyGg",
-	"zGJRcTX1gE0YozV0EEM2wWBfF+gJFYLFGibDEYXDWiaMnnLoFyC4EWnybvqGT330E2HMFBhTP7FG5qIG",
-	"BSryniIJUJdEyBgnPX2Hxfp8QpRBHNAK4cu1gxFePbXffbRYqosm5Rcn11V920iw695JB6iJRXZkp14b",
-	"B6SChHxxHYRPmYuys/VRBvsog925vT0OEEZfWY/mFzvORYd+zTtmyZ1Sg4q4DSPCKUiMJjLcEV5o0G07",
-	"Y3zgFlG3VVnowcOssmpQ/Odi04PDR3ZMJoHhO+Uc6IWVQo0eWvCJlsO68FJ4SFaK6g76GtiCBwD0RpAs",
-	"BcR1OcCiKkuNce4CTrMHdVfoVq2Tsxc7J0+O2e7D7t6Dnvrxvz3s7O529sgqwPJSDizReReTarx7nNO0",
-	"eyTCCH4CA2GJ+82r2aymjLVcxD5hEOJ3EPl+Bl+genBI+Nhzt8hpWHzxC/ZTOK1t0UX+Criw0oCu7iOH",
-	"/HMTsmhjeS6Zdi5xYEQB+FWgArfsFxxImy7zzjgf3IHPwquA2EDNRPKA0yk9furQb1BaUDNIZgee4XVq",
-	"Nq8qrgTXJMTUJZFSDsO+kSh4wTsh0HespwLGDiSzAtO/x0ymCTrouwmBqvaUw6dEioRljOVWGiuzhDhW",
-	"rJeSbrknpBmEyD80lCKjuwjaKQlSBFYeTIMqpLbyDLcPcAoQR6yl+EgkLnKdwtW94aXg5/cM+7NWIoF5",
-	"5EDnncKhhgVm9MBeYby0ymdpNX3uKFRPnX1xtA3AzU5+ASVGyOVI0kgwQqM9sGaoRuzLZdqFU9wkLx8/",
-	"/VAk1u3691YiukP0kab+7DT1VQ1JK8adft/Yik24RSxyC2zic425p+O7YdZDglnNAO2n1JfCEWCfuzol",
-	"EkgDNy6eIXMklIyjga4ippdUs8Shw46waqRhvh8uLTMpBjCAk5K6ksmWV4ZXcCgIIrwGGAx2VFM/UKr5",
-	"QqsLUc6PDEMWHlWoY/BggPlBgYG2k1LFHDQhFih9RXTVNLNyUM9tcHG3rwqgvv1MaoCF9l3qlcg/ivYf",
-	"RfsP4CNIdIyFBPzv7ya4hE5XOJF35q4b8WlXLumGYloJw6zW7cqbasSVHAhjHVop3mCCAPCTnsK4XGDw",
-	"6pwdPkL2jjnu7pCYzqFAwMEYYjFwcOSL5rNsOX6OqPEV93HJS8PEzqpp+0VKwqF/i6Ji0NQdBvGRa/sF",
-	"xMeG1Wh2Db4dVi15b37sSDEMrS+1klm1hw7iIH7I7GAYppzB0+iTzpANBrMfzMhwHZb69jyvVgGt3jPV",
-	"h4ee0+OAGok53+i3MBXJjHmiFjfs5YuzV8zxpE7BBhWKkgVn1CAdgn8sAmv51qHa7/i2a6V0yIL0Npl/",
-	"o3rKd5BgVkcTY332gGiOiIMkuEtYE5EHVZ6LYSUf56DjdL6phEqw7WoJYzpyCIV+qhMwJOnsDSbY7Klc",
-	"4tWYM56hB6CD6zx0uUlAP8hlgbsPShEPTJ824h7IC/XLZCHDMfqZvARD+yup7kd28iM7+WGulfe/TZZw",
-	"kHOZxm/Zg4iYyLiVKgCsweEAkRdsuoh7+2omafkvkHebyxa/gJDUJv4jB/fzH7WvmnMWNHJzS3xh13T7",
-	"WYeTq6fYW3zO2EmUkQGqrefOiAbjZKZzbrMhgQEDYxI31D4MCQl6asSnweyhRJU56nzKhhwTndQ75UJx",
-	"Aqi9b5hyggWTpuPsgGPDxJdhkSDLku4pD7fZrptypfU5Wmr42gcBTa2ndrvdH38YwC7cUS7ZP1Tx68cM",
-	"37TwFfvp7/6euddt/x1GjAP3BSaMoYBkGb9+/Jb99B//l5kAlSqVXyee5L7VhSjhcX+cAWAEMog95V2f",
-	"fvyHvS77tQ+CYq/P2JOXR+zs6+3P9j9lz7F29lm3230ca3zr63g4H4tE3cIcxaXMcY4SH0HbU7XEevjY",
-	"xy75iNqjCsIZp1ZpVupgxvKKTuAtKZHKUWNwWD0szMvrdQTZECXWU9zC5iXrChB7NhstVqtcl84lPdIg",
-	"IyblFTDbhzNBZs7YZFw267nQNLpzOuxIRe4HTYFyNfLsPQeoC9JSAWF6isCYiScH+YHiuGjEoB8haSWu",
-	"LOkp+Ih7ZDZcFx+MhJ13Bih0f4Mx2ZIrQ3Fb3vMiBoV+5FLTOPmjcBA7HoCdlM+kTqcBAJIg/tFX2vb9",
-	"O0hd49XjVSAhHPU401uYqqqSOBSvqmLG7c19C3hAAwkxe4BpfoCZ3uPFjpwi/DaKAi+hzdqZw1XtRwcG",
-	"MxVwiglc4EsXk/lfnPgTd+5nkoDiLtCM5euwMCFuX08sUJiP4tFH8eiD+J+gXqrZK6HKN7Um6xbYoNX+",
-	"2lEunZ3vqx/vvHDlSOIdhTlFBkg86RRpj2ny6gERPhkFt3TVelfsnlL6qn3A+Ei7m4MajW5MS07NSJCx",
-	"LDVXhrjtnkJ88jUuC2Lk4GN/25BTBqHv9ZS3pHojMOYewIfIkeVRXmQa1RWnixYmiLw3kOFx7JARcRw+",
-	"DawvVR9B/TFdmkLNoJlkw9kbz3jdpi5yUTKtRId97cGDa/VDYDXdavxC9Id6UrrkOBHnJI2rxw65chNI",
-	"KwGcrsIPfEqxDoN0Sy45MwbIlwJdAikbg1TgipObZd4nJ+op1LTxtVbJD1urse0Wx7NuAkw3f5uMNHlD",
-	"+ZTIh2gJx8WlpJKLMNG43Rx57c7xlvxSLINdqpb+o/j/i3C7qa8KHFXutuWtyv6rrpDbjf85MiwlC8ri",
-	"MKM0IcEoVsZV8zAAE0TD5ZI6opDOXS9wdDHVf0+FhB1r3php2yVn49bl3QvZxdCjJ3vju5ebxgiiL/Vs",
-	"/9FYst9TwVeSvHsWywgVPXyfyJuYqt6RvNDU0Y9hOB+lh4/Swzok/w8TDjzJdAntu9V4HJd/aT2ZoKb7",
-	"3VxCKAjFNgbvIr7WJ5w7n6JvziJLy3PX1zukGNTEMhuJm7CPiK+376ZWFFHK/fpeiaM03Dfricy3aPqI",
-	"+RfU/sJeZZkDrgu7erfDXmpK346Cp6S/8WOXkX3aU1VMVxWcMns+fNUkll5Hb1p73V1AsRKIS12GFxhi",
-	"PE0i/S2RjthZeSaAradcBBv0req6z8tn589t5fdGRKqnfEd92muO7s/kSgya1j1M4/FqWApDOvlCDCxD",
-	"9+VBT0Xmi5RBqs0IDfeeCWBocfaYYCEwQ32FQygKDEIDLTppFxzCXinYRElINA/jkwq4Z5KYwfdliU72",
-	"uQc5vwseiSr/mbgiN7IG+nbigw+95mZm5Q/DCiOOMWlikRLeprZ3cf+OXLo5XD9dvh9Elr900uga3Pke",
-	"ts3/aBhZH/m8X2C4NR6eQI2SyqYYs0daiQ0uvmbWzu3pn4PDczpTMhkS6mUMu5ouztRHpLcpbQbYECs9",
-	"G/5zN/q/I2bGIgMNfkT/IqK4hhYwQixrSFq0t7v/cP+z+5/uP/wZUxctJrYVs/tRFfjz04sXyq/GHXPC",
-	"jng4b751iMacZ53z8k1YcBH2sRmsRfUiX0bwyrkohKV80Y1C30vqyF1qiURplvvFUac/iny3vqth0t3s",
-	"ru9JemOZzbvJoxDmxQIMKUjAJ2RSFLUQIdbCNINVTAtKG21AfdaFy9nPq0CElsMW4PCGHZUXWu3JnA25",
-	"GWLi2iWyxkufwu9OwJCw8p/Jc8ONbMG58uEAWx8Z6I8M9KYX4lgoOGhuD21OPmoX3c73SAfe7bgraz0b",
-	"1wz36+hLxlUUfw3kg0n0GYQ/A3q+LClSh3QUJfnPdagiN6ZKjeMMStYnOAUtTxM5eUy9D/RkNQONw74x",
-	"B+2TiX5z59fzXzoJ+Z+ARXWbL+Tlva0jOVEQP7bxiTwuBC+Ni1lDt0/0t61Fp4kqkLDRieU1Nv3xOH08",
-	"Th/+ONHee//T5OS+O4ujQjWw01dV6WIqAwQ5jod8IuRObiy3IsEMMZRLCq9IJZjVlhdkcGet1IjvwPei",
-	"nnJrNutsTzWlnWWbZZ09JFcMoBMhpywUGgiR+zQ6IVjkXFxIxPfrsM8FGjzwu2Q2Qa00jBdX4D1nhGUt",
-	"9EhmYjS2U8ofKdHD0Fl4jS6Zga4kPYWeLFWiWueAR/gD8Mgl4GJXohQ+tQrL9GiEppxOTz3F2YGu1Xtk",
-	"RMAfxCqCnUerTBz4ankpekpNRueiJGg/Apwip0HkXCr3f+PaRQ8ZTuNCyb6nXOgKV1RvAKcJHUVVWkl7",
-	"iWdD95k0DHQWVijfdNQcVZLxCblgHmBsES4Bgi4y7R04DMUQdXB7ojrTPe/wHCIQUnrhYgxoh4cAgo4P",
-	"HkoW+/G6L+O3aRsjoxv9TUOB8CruBAZq2Dh3U5VUCboOx6XvQMDCx7Gbq1bCLNShnGJFT3BxN3YZilOu",
-	"3mpy2N1unB32Z07hTlP0VDRHFsQZX/8yct/9JZpE6KZAiqsHM7FaNagaenI7Ho/u653v6Y/+3aWC9Vej",
-	"uxK3caBE8shYTbYR14s0qXBsgnN77fp0ZnZ0G2RHism8CpijpsjJ0MVi9RTFX1UtLDC/0FGYpxNNAH3w",
-	"5T0DTbeirnsTK44Q7zL30PMH7UAu6uxzqGIpCx28qaWyn+5vRUTkUbf7cPfRo70H+w/3u48e7f7sBIWC",
-	"QRYDHMI3H5ntX4Z5hVYjcZB3eNEbcBq+O9IzWduZurLLzqdD0aXzEQL+pxXBn1aZLx3rQzEviJGtlXcr",
-	"HAtkWchrZgbt+l6gPTWY2NkQ0APG2V53lwBvTE1lFXF7GNo78TA1xF6S9uuSFzJn5xPrI5SpZxlXDuTG",
-	"uSjpkuJ+gZUWlPkuwfx/YaURXrZI0NY0AIYOPzJtcsYGjC7S0ifeCuC0ADEEYz0VwgGABfdUzi2vcoLa",
-	"YamvFMT8TCHSnfov1XhiWWv/+rpNrcT41z4b5LmYagc3RpSC/JAOokkneB90HHNJlo2lOa3WqUrZeegd",
-	"m2BK3OskZBYt+LkoMCExLw0y+T3VmsuTaNiFZlJZHce902axV5qqAlkJxsPMEJaM91Qt5P3Q39cyr3ld",
-	"jUXpe4Wz8Ktf/Yqd5GI01laobNpTZwLuh+jR9u/FFPE3R+AKVgpbSgGrMRAd9nsxpdrxyPkAs54izCMU",
-	"DQxJGmKE3QcMdwJR8qkd9/YZxkX5dKRIf+6hDxnoa9EAhIKbR3E7oPLsr85efOkyQIfJB1ox5mWFi6wy",
-	"HVBEWMto8Fmzgpkxz+i+HgnY9k6YcjM64taKsn1IDfXU8dlXtYaQpWbVbRwA6wDG+lznU3Y+tQIUWNvs",
-	"jI8EeyOmCaUdiwaVOARoN2Q4l2M0vdLe++QTjyjcUywcqE8+gbkgX75qXHvd3YpSYDvYC7zpvfNVCnIs",
-	"o89qy3sqxgWfYrPlRKTgU+YQqHBGq6iJ+nC8w6SNx3QAIdu1D2HCCxEBXvvhBgIAbtQFQFXTuF3TGL0H",
-	"HaaIeX+obLVHEBgQ9Yg0+wrzjWI+YIuOLpgwd7/7CJOD0rhPhS2n20cDK8q0zSToQKq8mQOppBlCf6Bm",
-	"HMVR1RjsZUecgKRAAw+AsoTi4EmJ3OEbMQ1HC7ZOK7Xi2u5k5jJt9xTcslGQjGHieqxLC1922NfYy2Pi",
-	"d7bBlHTAQuEqcUJPkXcd5SwwDq7Ba0PmtmdKdAy44qphyGeQ+kjOPgbm+AuUKE3qIcdT1tJ4CfKifegy",
-	"/aSzjFjq0BSiZpFsngvnkwMZervtwHzjBpWGvX71dPsz1gL6iKQPj842HUfE3ZaGyQsFG7BNcX/7u591",
-	"e6rlhg7wI+cwZh3yUqe9rfSQPXsKS3R8+uwpK6QSmHe13WHPpEL0Dm3chuypbMhLnllRQlvpr1KfU4iW",
-	"B63KpWDmjRyPRX7Izguu3mCdJn7hTEW0yTVqhrBdp1CiBeuwY11MRsoE33pKHK2mRIEOYHresgw/Ym+Z",
-	"XxH2Nsq7q6/YW0/d8UdPvd3e3q79H2pJ30iVp+wtmwrD3rLU15DiDyyfMvoyBGn5j90DJoNL1oKHWBwv",
-	"pKow/qwXJSUbfV2HZgmlPBhL7XXCfvqP/yvrztTgqWFVGONkw9729+iSFz0VJgElJGi/aqW6PGdG6mFn",
-	"5gr4F2zAM4Tp70263fuCdVmLPiFWbLcNFQFpeRFlZh6LElYSspc7TsBbIZ1tBHMJ1yg8pv4Ny4bn1a1C",
-	"zHGShzYeRE8hBbf1SurL0fYugvB+toVovlr0t6FLpWpmpoVoxtoddqqv3E0rKZ0L3NeB+4Ga8C2SXkrk",
-	"gecgblea6lB4SH48Bcgi0IdY/kvHz06MYGknhZZykckRLyjlOxh+madrSIQVUql0t/NAbN9P24QzxICu",
-	"TQzKHi4psy7NIUu/5F8CQT1Rg7QCrJVvRGw+ppSipaBq3IxgjgSEWZIKmRh302SiKOiaCVcKENkp5cc3",
-	"MMh7hsGZDpQVdxYVVz49EKxfPnFTmvspJFLD2UgSDk6YQ3qfAJvDcB4dH15d7yQYAO/jSK6LU/c0zbnK",
-	"ArGjtNhoZseP9ruPPiVeiNYNJ8WBXOIiiJKlO1DS7OB5yRT+I9wv6hw9Sml7NH+ftsOewTn2uSkMcYk0",
-	"jy0AasJsdoHNhoMXCCuRLVAYsxB0CEUedLv0ziQsVOElOJ8jAi56vNMooMJlToeq9rrdBEqgxIIHmZKk",
-	"E5tEMgcKLE6hLZz0GGoEZyWXdVerbaIm5Ot+GHKR8ylyQueaAAVQZCLvXuKpUNy+Z7DSXABTXEZRKVCF",
-	"y4WPdiFUVDlQe8bDlHc6ndSvGxkJrnEWDnoqTdOe+pXjZajhiOqOh9pq5Aq2d1nLXa3zV2i7p2B7J15q",
-	"IoGyfh940p8EmpB4CtNTfikTJeF7kTzbTbqdB0m3093t7iXJ0i+6jz5r/mIv2e104Yu97oPmL+4ne/TF",
-	"/u4ufkG7x79PsPCDbvL1dre7v7fgg9379+mD+8mem9AF7mmnk81RiSKO//di2mA5gJ2BOy2wgXhlOHQq",
-	"JwljNOACy0Lwhr0NZ+/lvYm2VnVDL+pX9fGd9y2AgKBahVdIKRVixaJeRpz45kgVS7oYOHfonYbLZwYC",
-	"ZlGHPPe/9qS98AXe3VnuiEnkNplsecGoXsH8RODNDw/PRU4kEsY8kuqZUBd2GKui4/w3H84p83SyCkXL",
-	"ZX/zxodLTzfJw7UF/Kaj1aWT5ntqToeTkHnaFXJXQ0hb5BbM2Syj6K0mXcH8RKeoPCCWDC350sSp6fzc",
-	"odFBsSpOEhudUV6AAL1OwNe51oXgCjfDejFmDhHQBZmVE0UwFx/jyz66x951nmhtLOPhIA+kjQ5zbNGY",
-	"qDXjRxqMF7iZP0hgGYzDu6pwryE8wCF5qcDB/we1hZN1US8bbMn0rObRUopMSAT4qlO8RdbRGzBDpxN1",
-	"54kqJ2oJMf9oYvwFwBt4gwFt3hudwc3tiz532t36AFKZyDASsHZNUj9tzrMLVE8Og7cEe5/PqK5VJhJ/",
-	"q4ugFjPBbDcPi0JxpVL1lAd/zdND56fmjYxktSO/C/SVaPDPos572yPlG0ER1XXCR+fiSONuVJbRgLQH",
-	"qnkHpYdAxKLAuKDKXyso7E9jj46eeixKoEWzuNSeMv3hOIlNG5OiBrhoeioXmQQSl7AZYClM0OvcR/r0",
-	"KD3oqd1O1MpVrYsLkRMPWOoHlR721F5cRaYnRc5qVtuZz+/PthiAgKXPPTJTYj8u4UwiLrtTjqDTMQwj",
-	"1OhUWQjbOFPXg04cwtvs2RcgxWtwk07z4XYDoW5HxgzqV9xaMoshjcVrTXqlZhMmdCnIyiMKgipHRSlq",
-	"zeaQpz2buWhnSzcl8B1WQIWHohRwhS5AmA5ZoWeAprEGrBt8LGs7JNNlKTKLmlGvtMCm6yLgPTS0UULq",
-	"tvMb9XZ4WEk/5dI6k10dzNtNGtbh86Fyl9n6sKc+jbdLDZXzgKWwKXBSeAHb4WH8bQT2yVpBvIGTkpDp",
-	"LuB9UmfbB9gFd6qA4tfcooPfMx5tJiNHWACY9xB0jtymgSK8QFsOyeGmp8hEd4QQKQcsZhAGQ1n+xtvC",
-	"KlBzNM6h+u7pFyen7HQfyGtRCHKfTT+fqBwMMdCHF+dGlJekiDesdckLh5OCg319/Po5y3QuSAdlJ5EH",
-	"dM0R7YBVU8B++v/+PaWTTFg02fC4p8alAE2p4uU0qQgjlMi4An20M6kRSDd255CluYCLNaUTWO0ifIPU",
-	"8mmpR2m1kO0Oq09azaI57Sk/Q966h1pKt+DO0FnqK89RVnpy3lNmDNeiGQph2RXSOvhN0w1LNik4GkTK",
-	"KhHybxP2m4RtJ+zfJszyc8zqfnwa0Ge5u6TabFyKgbx2U4ChbWNtbKnHQ+FQ8eHmie8oDtefpokiw3UN",
-	"WgenhNabUt2TctpfUjBqiGhl0s5N2fV2vNOGxcPty73fiPIhTaHfYz31xbOH7HKv86Czy9IXp6+/Pe3u",
-	"pmwkjEEffanYk9OHDL0i8FLSSkQYe6z1/OyLpKdefH5Kr158/tf4moZ6QANLaCNOFJjZ6Q2j7ZgwXW3g",
-	"nrJyhDn7CE8DOKkxuvZT3VHmZDhgibvbxQV8w4SiGw/TsfKylODsS24P6KDw/Nmzl2xQEqg9Zub64tWr",
-	"lwDsqIIzjh2WIqSUhvWbqEyUlktlp+x8kl8Iy6bCuR3EOXRRwX3JC4e8i4vjDDULJJDT4BT7AQSRQGeW",
-	"Kb6OPLXxGw4mZToWrKI9nUqTqM/hzkcG+T3VczQPi9Vzc6rLrUVbe3m5Jf6bHzPl/BKSUtUze5Cv8UTd",
-	"qe+my3eKLd+CIyfVE7GfgWJ59b5L6tfiM9lyPNdoKmMR+J5gTI007DvClJSOpVWZmBWj0PBKlwogslGe",
-	"fed8UVkYWpVwB4bfgfN7iqDrAitYxbE4i6XTywbmIooTs7EneT1ADO77Bc6mbLmvKcxonUOXZk6uvOLV",
-	"dB86vyESsOAu8fE4wX/Ma4owLw9KWsI4X4RFuY2cQb2nolYxOq3i/2aFdHBc8HvBLbiX5SjESVojigFK",
-	"CICWhzoFP9JI7JuolW6n7hJ0uVpgWdDk7rxRoa0h1B1y7jhXDbc1DoMDBJN5zcc09vpE6zPUlQDjBSKR",
-	"A/f3so+0IYJtyE1cqRNb/NBIKuipanSL7ZVuAt/rgryDTJLUq58Ji6N2XzbeZ0EcDRAFZaWl8W6ZH2GQ",
-	"P5ov7l5ZmudhN1odGTK+8/jIdihGm9zuS0wZrqGd74OPx7u71pQOKq83op8J41mpjYGB0gH0yK10jaIe",
-	"tafmFKmHbMVtEppyN6sTUNaJGHMJuypvuAUCCZG1hTLJPJ0BBP3a0OduOvd2QZhY6NHtQP/dadr02tx8",
-	"lCN+6YRn7pTymd16ZxJFhTNGBxiOQl7yK16sJ1ospz6fT5G/cznKcVxRnvGE1fSdgS2vZ1lHZ6ieCh1F",
-	"GCKToN+8O7vQYQeTWfW/0mu4FIO25LJoIiZfuzJVyut1QFfegw68fn3y2FOA2+f3vg5T8DNBPa9MHR7W",
-	"7GMS8Y8M3oeks/5oMF7tvFtLJu4F8O0Rt6KUvLhLy7dLHF6ZD12bGHKT6XxhOoszV+J56ORdUoKZxpam",
-	"uPAd+ghycSdJLua2ykbZLe4ooUUmSqcjLIXPTOH7B1vfWECjMtqFHTkrB+ocXdEMTYEpGm1SFxonrsdc",
-	"5SLvR7aQlHyyUkyQDXkKKYQpdYEdachanbLWj//AeFKpuUqRWa4uJgUvk56asN8yvvPT3/2X+20wkM30",
-	"UJc1IwtFW4xLMealc7CAcGqKnAsDJSAOadFdwn/cH6CB0cdiu1G71y6qzFgxBnN4ISE00PncgeHzEmJK",
-	"yBY2ehbkG1n2VBinaR+ySOWaoK0Lq/CWPYS6CsbXMSc0EGew/a17wH78gf3L/5+5Luxg8+3gOlKKglt5",
-	"WSVA76loTUBzeo7xEVUD91wIGOoIaRiQ+3inBTP+4w9ftXuq9VfHv3sOASrsx//2oLPb+fSQPZmUHGjO",
-	"zvHJq6Nj9ofXR8/Z0XjcYU86uxCS5TKRBADonnKwRgeMI7lkEoOoyBcIojgfLUHOnSVrd4ShO9vMz6TB",
-	"mxvtQnnSXUp+X98sQUa4yNLmS3Xne1ivj97MH7nFD5ZTee7qvHl6jIX7+dZ5xUad2TzhWi3oQvf+AlRe",
-	"a1Kpijh9VHv9EvCP3udsbabqIuDrjRF9T4yZCMM4K7nKgReCalgrQLvs7n3GzqU17UqNDG68itBijFdf",
-	"iawUNuik0K7rg4VUMT0MEayi9DA+8ByZKAcJ01OI6o8uXOhZXOgLw6RdzKe8gq7eEXOCdf9MHAm2vSKY",
-	"DJcpQrNzCwCuZwqZvF86Afh4w989AcKzzThtlojwOFKx5p1OX4ewJMotszZ9ORWX+o0TgbCmQxebXiEJ",
-	"dHfblRzmcjK6HMHoft1TESyCd2sosd6c6nQmtkb0fuyuJxUfTO9dIw3787NF0/IxC9Qvgg+GpXj/Y1IK",
-	"lZs7gjmlL1z2utn07EHFEUN6R8EqqNHoKXBOD/s/SuGemkKPAX0Dw/LPuREx5tFIcDJdOWPd2WOsqQqY",
-	"SX2JtPL0r7pLRiuV66uqwb0uIIPDVVnqwsN8GGkZt+zHf9hjZ49Z64qXgAVOqpYf/+E+PiRftTbatrUC",
-	"H6qzobga8tJCZEBpWevk7AV7+NnD7vaeG87XwtgLDF1El63d7T1TVZ6w3e37gH6zt71nEna6vW8Str+9",
-	"S74Cu91r1qJAmjaqVgRMJKeIqmpiTT3IyZBbO0ZpK21DJM5h+CsO/gbVl7Py9VQaGjhgA14YkYIG7lLq",
-	"grRtXo9mcDCz+WjBre9SF+hKh37nA3HlMVzslZ5bHDsUpfMHC4sOICC0HujapyB7E/nUU5PSVJPQYUeE",
-	"j8J2ERqlGlVPwcY+ZBBOrjKC4vZo6yreERipgNDrLcVLBACyfi5QPQiLiMeKuQs9ifhDjJLPROKCj841",
-	"IhdMyZGyp/5wzPAizyelMBTVyrOsFLm0DpWqFKD0tHCpqJydvXjpMNgQEb9ZwsTeLLhHlkFW3E4uxaZm",
-	"3OG/0zbCaNfGkcB5ehmKNaBbPEH0AKAfsUNpwqRCb9fLhRAlsDFuAV3jGbcNrYvrFa1bfQttf6Gv2Iir",
-	"6eyZTCo2CMNd6gQ0IfBOGxHpRb3075sx4vdiiPi9GkL83gcGdKbztMhzUpQSJgWOrh9REmChVF6Rxo9G",
-	"tTvIPFTKgfUch0M19geaonUoNgjZjJnLHBanfvNGbBXt9dvSeuD1sDMutO2Yy4s7Yr+wlVqEIbWbzoCe",
-	"VNdCwsgDxLl6u+lBLuUg5h0cUCn5H9JVlgllkTVQ7m4jnqinIlaI5jkER/vakPWgUyHQv7MQ3pEIzYOI",
-	"XFzA3X3awIwobanXyy6/l4W2Z1/97uMd+PEO/HgHRnegHPELsWMuL35zPSpuEPaGpOHjNXb7CVBi0ksh",
-	"bEi7E0ZU7JZvJWhbZJMStIZAFc8FL0V5NLHDrYM/fvPum9Dg7Hk4qWR69FbXg5qnRRX+1KqEcdPuVPsd",
-	"SjVAAj4llP+4Ln/QKBolwnmAW9REVbo5ma/0RF2K0gg2LkUuM5/8y2vpamCPcX3V502V/uHIQQpgX2Kn",
-	"1nryd3HVVLgKx6vnuElC0M1slhc7FB5QYCBEXmvFeZbPNfNVY0haUsXoVTjyDv9AsYEuMxHV/l3WUPER",
-	"XmEy44ULtjaRWwsIrmJsOUaB6UJmUsTT6go01fryxCVE7cTkGx405Z1C/8AwYboetSQKkdlSK5lF2Zvj",
-	"xcXSDdU+A3ORMCF3Bv45EraUma8/ShrXmUUvpN3yzbv/ZwA=",
+	"2Tr4fmsoeC5K/PNU2HJ6NLCihF+5MFkpx1ZqtXWwdSYyrXLDrGZXXFp2Lga6FKyEIlJddLaSrVK8mchS",
+	"5FsHtpyIZMtkQzHiUNVIKjmajLYOusmWnY7F1sGWVFZciHLr3bt3ydaYl3wkrOvG8aS8FCeP5vvwcihY",
+	"Bi/vGSZzaFLC4zG3w61kS/ERVpwv7cq/KcVg62DrVzvVLOzQW7Pz6tXJoy3oz0kuRmNthcqmvxfT+Y4c",
+	"sayQQtntbKiNUOy1mLIWZ1CeScM4u9A6Z9lQy0y0mR1yy0b8tYA3MGFS5D0FXRTGMsMH4pAZIZgdCqbH",
+	"ouTQyj3DojY7PeVHS+tVjTfq6zZ0tjbv/PqpUBd2uHWwu/d5AusQfsOsWytKqPO7Px5t/3u+/efu9sNO",
+	"/2D72+93k929z9/9m62wXMaWUl3Q5Chjy8lIKNu8QjK8ZzIXysqBFGXCuGFjbazI2ZW0QyatYeVEmUWr",
+	"WDVy09U8CY1jt1/wC3E8KY0um7udKnFt+xl+kTI9wOUYl+JS6olhY34hDhk/NzCsgS7x7UCWxuKrMIo3",
+	"E1FOq2FQdVvrdtn1D7p7OlGLjkA5UXd7AN5BeTPWygg8kF/w/JR2K/zKtLJu8fl4XMgM9+vOuNTnhRj9",
+	"5k8GOvr9mi2+oFLUaH2oz3gx0OVI5MxMleXXCbsqtbpgsCOZLhlnl7yYCKYn1sicjg9Ve8BGvmxP/dXZ",
+	"868SxhntYHY1FKVgnKnJ6FyU7FwUWl2YhHHFJuq10leKDaQocijiDgjTZU+VXF0Idil1wa3At7jULJAu",
+	"Oua5FoYpbRlMzRSO7btk61irQSGzDzp7uFGE0ZMyA3JpLLcCNu65BCKOL4n+tDjRVAZbXVyJnPGiFDyf",
+	"Joz3FL2CE6snlnE2kDZhPBSGFzTxfCSYrEgRkkRjZVEwqXow/Iuhbbv5eILdyIX60BNi9WuhWMGz14aJ",
+	"S1g+k+mxYIVEwiQVS6+3/dHZxncm7Wwh0YOdwIvHZanLD9lt3zAT0HKHwTDOdT5lhk8N06qYst6WrH3U",
+	"22Jc5bVFBmLxLtn6StsneqLyDz3vQJnysB2rQyKupbHYsxd8Wmiev9T6KS8vxIfuIM6ouM6EcKfDiPJS",
+	"lPcMy7QayItJKXJWyJGk3p6J8lJm4pXil1wW/Lz44B3OueXn3AiWcQUzeQ5rzbOhyJnSV0kYg8wEcCRm",
+	"OLEWyF+ur1SCBK01QBp6VUqLPIo0eHNzlbnRG6gxd3vsXGR8YgRe26FtaXoKCCtX+fmUWJRZbnI7sJNN",
+	"g3Vf70SMJ473pdbPuJq6S8f8LGTingmnpwTaKQ3Tl6LEGXA74baG+0rxiR3qUv5ZfNCj+UwaI9VFUl2X",
+	"SbgEdQkXgn4tcnYueClKmpWZQX/zzTfbRxM7FMpCL8U8w5J+gaVTuiq4YinSqJRxa0t5PrGCtU6fHLNP",
+	"P3vQbS+XImZZUZq6cakzYQwcwsfKSjv9kDP4jSiKbcelSDWeWOICzkvBXyO3PymE5yXdcTx0M2BSJIuG",
+	"wbHtKT0YCJXDEUX2o6Lgk0K4a/OVMpPxWJdW5M9ELvlLnI8PzVLgkbhn2DG1ug29gMMBVEirGSmG8SwT",
+	"Y2s6yNO6NqALR/gciM0JTBv2Pc8llOHFixIqsFKYrYMBL4yY7UlVmtlhKcxQF7k5xJnEPhRiYIEvZBal",
+	"LuiSUBdSCZSqBnxSWNYyQ2L2ioKufq3ww5GwQ53jVhxH/fh+65xnr/sZL7J+oa/6VheihB70x8TYieus",
+	"mBh5KZ55YZf2L+wObrcOtnI9gYsiAamMPtjtdpMm2Zh4U1jyqs2RVP0xN6Y/KHlG0/D90rrXrvnDjGSo",
+	"R9pkIufGykzaaZ8X4+HK3XiEH71LiMOBRd+wHPB6fT3oD+SmJUdc5dzqskH8Px4K4CCvQPhnAy6LSUn/",
+	"0la7FGUuM3uIP7QditIwXgrG80tpdDlFuc2KkVkpDkI7X/GRoP5cn1Ch3Wp+eVlyEDcnSr6ZCPceVssN",
+	"QBQbj/q6X5q73QqwlQtxKQrjdBT06YO43N68oogKln3zZsJLuijfY//riS2kKPuZ1q9NP7+zwfp2jJ2g",
+	"PuLP4u7aAn3Khut9KUo5cDfGPCWob/u3v370FqTuqAgxf7zMWevk+Oud4+Ov22zEpwxoK+MXXCoQPqzp",
+	"KaVHEiQUlNk77JGjwnvdhHHghNirM/b4xRE7+2b78/1P2TOkwuzzbrf7qKcyXshzd6PEzdMRK/i5LvGo",
+	"3jOOfDMjrIGGmb5yyrM7mPF34Yk+/5PILExodTW90IXMphvebI9RKg2XGtxLA11mIvH3lqlurI2vqPmh",
+	"vv+Fs8nFskbpxdfEGoUbLok1SjVeEWuUq10Qm9PzGgVvINdr9aBGrNcpUSO9N6Kw61DSDUrN0MU1Stap",
+	"3BoFNqFxwOMSnSsKDcowkJIbKZ5hrTwiYovJF7KSK7v5LpZ8/hgv1MzWaNqwC8/N4uOYLCUWywnB7D6p",
+	"78T5c1hbs+aln99G8QFbuobfNlFhvz1m7TZGXiisCGQHnODO1tI7oNt5EN8BnW63u9uwx44UL6ZWrKT2",
+	"dXpNGvv1zRjJ1psJV3ZVEdeZP+C375A7XFnmFXwzuwuxf6584zTHDW0owinGqTTYMrz+MrATIP6WAoRd",
+	"EIlBCDYd9o1TIcx/br1ZpKeq8wl1GD4aF8KwjJfllKXS9INlI2XnAg0HafWIFGek9JZw1VorcicZ9pT/",
+	"jiErwo761ztHfWkCowNlq0FlWmVCWfxWJdgb7vrjRIeTs6jOQgpTs2VcSZXrK9Yaw1lS1qsRPC+kS3OP",
+	"jQRX7OSM+VoOPZvQU592f/qb/7S794D9OmGZHo20YifHL7afnbExnmPgKQalHrGRGOly2sbxFvziQtDs",
+	"g75mKIqcVM60FmBPIaOLNOz6v/+HLvvn/8xyWUyQMv7zf2YD4vF0MRkJ9s8/+OHykZ4oCw/ycso8HQHm",
+	"xoa6pbroKdhpCStBR+268WbCC9j9rh81Xo9nWSlyad0Ml+JiUsA7LHj2/AWMW/QUmukOGa/qYmNRGq2c",
+	"ycPbAkphJoUlbrF+TnORyREvzDxFOYWuglEcFagjrqbMf4zqVMFzWLiK7FhG6mTTianMbjOjGd3MubAC",
+	"Z62PyscF0s8y6cCfmr4/IZtRHmn6tCP7Q3kxXMxzxNzzKoGlqhOuoFup0q9xuZIb+4P/8kwgMQvb8MYz",
+	"XNWwPsVNtqK90Xd7Y36feXnpPmtdDYViqd9lKRxFsku361sqvrd2G/wumuj5JJf28aVYg5rXD0glIczo",
+	"R0EbesUNy7USCROdiw5Ly4nqZKXgVuRpwlKkth0itdVvPh6X+jJ+UgropsjTzrxbQgI9aLLsA7ftKSdZ",
+	"/1BBy6Gi5npmFp5bsW3lSDR9mwvLZdHMRI55aWU2KXhpEiZVVkxQucu9mbVE+wI3WnUavSzia5jbLT/A",
+	"ZCvwYK71bxet41N9seEqikvvFLSWOBPtljl5ZmYEruamvh5zvD3Mgs1DFwQQZtzoKne65gOnWkZGzl/A",
+	"kbEu3INZKa0oJafLbjw5L6QBM9nFROZQuEGHUL9Xeqp+sTgNA9wvoF5m41JkIhdYFS0uO5823DY9FXym",
+	"CsGNcD49fqbndtdIKq/wm5cWUZTccHlhCSdW5PMz/QQ+Z0hYkMWAylmmJ0XOnHHRl8XZUiwFgUDkSHyw",
+	"LZyZlLZkSrbpq+E02trnWheCq/qxmRtzoLzzByrSieBWgB7x0rkTHTI1KYrZEQw5bBWF3iJX+LcNA2lm",
+	"+6EWMueScmi50D+7XYUdijIyIjinL2QNqEdAtXNR1xKjhvhKGuEGFquJ5ydvHZGhpmeglYpmO6qM7PGN",
+	"QylFMD/RqbOV6QTYKjxOjRTUwLkBMXTBOqLTm/8GlmYkuMEzi6xlvJTvvWDN8kzVQ7/jwjQl1SmpC6Bu",
+	"qpaS3WremzwG4aW/iiLaNUY14QFLK5Ef7jyS+dOkp9JI3oc3s6I+PAvSOtApqRU8C/I5VlIKeHMpAvfX",
+	"JztswtIgrmMpkIkmvOiDyA4PnFxusJaRVtpqJTN4k5dyYNMOi56yVpgzIIJuw7SZWwRDchTJV1YDYYF9",
+	"k9liykIlZGZHCUiXr1H84+pCdHyD6HbgV4lxy6S6EMYeYBElroKLqCn0WNSEMxSXUDh4FKyy6LhUuSzC",
+	"20qG2+uykTaWAYlXtqc8V0JtmKRygPpGGHsBoiixKSSyspYRoqfS3z1+yXYud3dsKVRu0naHndSOOpuo",
+	"QhgTk45CGtRgM256Kkxq4s4iFA5GTjwqA+ApgLlRbLfLZvrZU+hpk/h2qIJqqVpI1Ompl/TYDMEE5600",
+	"CNd9qfo5tyL1pLi+GBUlLifK2bnRDOArYCOOt3JhDqNR3zMsFddjOK5hn5rUkVFpe6re5Wp/6TLMZYK9",
+	"RpoLc+iU/2oyWqBWqyvUGlRpsTLMHa+tZCvWfi04W7EmDL+KTlal8MKe+L2/lWzhJiciVZ9qpE3qUpQX",
+	"QiElAsZDGhAJx6UeyEJERMmR42TrehvGvn3JS1wFmAQkU8/AFdhNBD3ws4G/nvLs9fPBE2n9gy/nZwWf",
+	"f8Gz18e1mcHHp2dhdui3m6IzN6rHboLw5Uk0S+5rmqpTmil89ryaLupvNGf44JGbOPzh2zEn6hHNHT4+",
+	"rk0gPnrhZ/GFn0Ty2Kx0N03U3JuzZpQ8TqNRERAQBFdoGEGoDf9bIWGCJ6lEXrPhcr3S20aC3iQLX5GK",
+	"E2gd7sRLXpiEdTsPgPh2Ow8fPlyp/Xz48GFN//mguVe21MVTuErNhnrAs6G4GvISeXeohHyrDGudnD1n",
+	"n33+WXd7r+1ZguCFCt5nhVTodj3LATQJpqiyWNNa4EoU+mrNArj+Ys2Pr3ipQEGwQYd8kXV7NMPzuO7V",
+	"65npSG3USW3SGvkcWqrTSdHI6VRXITCPrfBTWMaLTsKOC6k67HgoRh229xlr7T78fLfN9h/ebx+wdHd7",
+	"z6Q95NpJ03guplrl7Md/2INbu+X63T6ET++bFP19wjf32dmjQ5buQSXMXmlgFJQR2QRoj/8sXPtYI+63",
+	"Q5aebu9TGRYVSaD6nuLn+lKw3+D33jEL2Xb0H79iP/3d3+9Ry/vbuyZlAz0p2XzLPRWa3o2b3u1ep8wK",
+	"VSvi3JHwa9QJ60HgYeqXGkzZVrIF07GVbO3RLxjOVrIF/YF33es1LwdY1F2qAf667//aC89O9/1f+7vh",
+	"O6gfdsaCAIvnY/5mIsAp3AjLKCqCteAYf7o/KaujPQbKoS68JssHqzzY3VsreKW//e1v/k2TTIIhRZta",
+	"KLz6n9RP7JvA0ggOnTR1Cdl9zGGTF8ArZ1oMBjKTQllkpOvMgUlJZM70JS8lV5lI0UlIjMZ2mhCfTCfa",
+	"kMpKCagdmsHvgOwlLHVSJLJh6QCE78TViz5KKIr3FIjiDWptnhGZ6HPbKANWHBxIz/7r+pWxTD/GK6PY",
+	"3LssUvsslWX9d1AGx7SZub3J1B6vzPzATxQb6VwU2+LNhEy+usxFecDgxuEl++N5N2Hnu98m7kFfl/JC",
+	"KvZHfPZmwvOSg2TrvkvY+d63h0xpte0qwNoN8NfpM/jT6Utajk1WLFVa0bedEF7Sx7dpu+Y8tp6PgNMi",
+	"PWiaiMXsxHEDEwHb4ZwkJDRreIVAYC7WMnUnW9Wmb2rXvwMZoZTXvuF41RJmfvzH1l//3//733zz1+2f",
+	"/j//54//B1iNrnD2ou9o5WpTdmtzt3xiSb29/GC52Boe7IxosLR6ozOWDxqMUo59Zrm4KAWYFQdsUAqR",
+	"61HCFNxWbBypbiIrE3nJ9i9FaRoZ35eRARJOBn1PBCpIgRQaZ726H7/f2e10O91m1b3zzNJq1YF+HD58",
+	"l2yBrdI0qTIzCwYR9P6ljlD3nOpNaa95W9sN84m0Twp+0URJhoJfSmEsCZWrKkKB62zIS1TMyXy9cLwk",
+	"DoZsVJoGh54Zm5E0VqrM0vk1XjgZkESy3NxYBF5+6YDoKzgNKL83do9e9UE1vnhT0UfMf9R8PoBLqHV9",
+	"t6nrSF5X9RwJL3ytmo6Pu9+rCWMt3KQ5OgMIrxiZKNSLrJzMQM7XiP+8FF+Fr0F7q2XjJUV+gkGb4liS",
+	"xM+ULpnvcMIuSj0ZQxzH1FFyqegyN7K63tZ3SoY+voBuNR2ImvPYbKwExACKvE6g4RKxohxJRRSlNSGB",
+	"2rle1a7Y9g2V9qg/XDWuU/zoXaSnMfkS0hqmPheXkrpuWtOd63biOfd/+a9X7LdMsSscNzMZL8RNB4Bm",
+	"pZUjoK/c96gY0ng78KJ4Ptg6+OM61ObbWTb4RSkw6FkrxhULtDoc1ZrLDBl7S+G2IdkIyGevvz69m+GU",
+	"G8AI/OTTBws4BDT9zu3t9733jeV2st4pOaNPIw+s+jBeHb96xjJdyXYLnIeCFmmOtnpWqb8W0fvafR2I",
+	"n7sJV5Zzn4EyAjdzP+Mqlzm3YiFpCl+AIj7TpXC68pRPrE6DhxFKNNdA27FiNJEX8rVgLRSEYNeRChum",
+	"KOIkFhRur03GiBod+1420TI/VtAZqmZF4Jf6yjVOIR54yHPH+SjYaYU0Ah2EzGQE/yiPnJFGdKaZLwqj",
+	"Wv8MfxOKzB/klz4+XrAJ9Ak16FoJ5kAsyK+ElodOMYZ64Q0X96aPmnaR33qvXNvZUGsjjEdZMJXAnTBe",
+	"GF3ZFhzTQHuAK9TIBJAGZ0CsNqIT188F7cd8ZlRhuLc+rqir3Lymiw0b/7ModX/IVV64RZ7fXPBJnRgY",
+	"Cs10HovsSpSgVxlb599Q6nySwTGSaiCVtMLvz0NSLfh5UYLxUhux2vuE8CSIgAdGb56tS+qYHV72d7TP",
+	"s2Xxrm6e/SYa47n9pjM5O40z4v38bVITP+vXPYpTddsONBAsRpG8HFizoJYITLNnOCr6Gm6NpKZzqcmJ",
+	"kUpkTg5rVMIiSo56oststWZrRu+zwMVipMkEipsURaj15dBzbmSjD8/U+T94n9oqokUqsPDmppH43Ug/",
+	"5LV8q2/myWjEyylJn2NZCrNYVJcgQPFLokiZADa6ZrF0xhKGCDE1Q4VWYuEELuD5IqmOG9uP3d7Xp0tf",
+	"x6WaSVPB0Q8jrp9xC6TFX0/cpnVXjCZzy5yxAVfA74aEPNeiGW4aVrTWC/f5U2k2dUm88QbaQME4s5Xm",
+	"tAPc9Ee6XLklv+TmmSalQARCtKrUV+LaRoBBc8tgturVRf1ZZ8q/ioXWDdTm6LXHY30nHX2e5+Yggssh",
+	"bWerSWHXTpylRBcEwqEnNtMjQaJGUA8OJipzUFn/8k/IUULUIckgPSWMlSOH1aOyoS5NEmw3wXLOnOW8",
+	"8uOo+ZyA5tx7Qh1/XWlAs9fb3htA5PXrGQTDKdh9c1H2VOrqJ5di8HBOO+yoQpEytuQoHcJUGe/wTgpk",
+	"0+mpF6WACwSvfbzfiSFyLPHEUNckGLWhJ+PwOappe6qVEplKwUVI5X38EgaethsNAjRR84QQNVfgJAl6",
+	"JD1wMxrHIrAWvoXhU8yGw3uA72DiQSIwon3gNBTkpfGnSX5Bys7FbpDzqlX05yR6OPc1vOPh3DfotfRF",
+	"/3oJshzcUHnJrxAOgLNCX8wsL7+Wptkzz21SqNxb5ry/Rk4cQFHgX6GPfe98ZqQCD9Ny3kYXg+P1nZHu",
+	"+yWztVR0dZtxbfrmPCKCsqeq/NP9hbVXW31NadsOheWbfNtfomx0x7e/icpnhnjOzne1svHmq201P4iZ",
+	"DibhQPmNV61B03wtpMW0ApvR4edKzOkHK+i9XPILpQ2QGYiMqX7CAahufWlnwJpYS2lS7usSpKtSa6Jk",
+	"NaKIaiH8gLxkuviJd5Mirc0yhA0irI02qegowqCw3UAanan2Zkq2bNbnZy1DFgYrSsJNai60smGvqW32",
+	"0SV6ecOqg1mi0WhQ8oub9jm4vOFaNsfS7na7P/7QmllUtD7Vprq9U/t5YxUpiXE3Hg8J1GuuexS62o9b",
+	"bsZuK6bMFzCEg4YFbjhSEoEX6ddntc+okTpkXTrPfqvdhjM17a3ZcxNNZehq2MTRMi2Yw2hjzp2uZI5A",
+	"NO7D6EAtJKhnQYk7q97H+A1ES+ywo8qdGP0rxoTQ1Cd1fHoYonkoVlTRkvrLv/71VrLlnXKx2xTLtK7H",
+	"ZtXnF1Trqa80enVU1R89PQ1NhcE7iWXTEK+as8gteIDUbOTr1TfgshB5v3IEmY/2qqwB+JEz/kry0xlz",
+	"Y2If9chvuL0ZG3pr1tvNLKe3afpcAfSwmmZuatS5ud1k3vBxQ8uFU7SuqdX9cJrQWOXYoDWs7/slWsQm",
+	"ivfIBWg3eQjQGzbA6EIErZUid4g8QVhkrRAU8FtHDsk3M4r+bh+yXbpjSP/euTHkzhpu0I9jj5ENeOJV",
+	"tsxOg4ucCyt9r0DR5VZ8z5yTbyH1xN/UpkaVNiDXizm/UhBGoGiSkBfc8VWZpg025wQAclWfoluhkZW6",
+	"zurThlc1U/Za8O3xCOLykc7etTjT1yjKtvkohY23nkS2YEnWD7qvrdW8fOd3jrvxsIGE7W6DY23e6OZx",
+	"GLAO5kvOHt9FYffNweTz22bpBEaA4htMYXWQ1lJgzCxXXT/ixrQ4xnZ2G6+nfH8prm2D0p0MIYL0ig4j",
+	"rZTqNeOWnWs7ZEIBhKWfxcrICTBEhuLSwCEf/nb+XLwUrmjg6mtn6Xb6652hoLWooVmlyczBalp770fX",
+	"EDIA949z2uOzLnsm9tljaY46BeVc7vp0iaYHFDKAzxjCgbKRRs0tV2zIi0EFAmB54X1yXHhe3YsvhdiC",
+	"gbjqh8Nn+gNd9s1eCvEJO+a7PTKQoxWd1Jw9RS1jtyHsmMLxwuRhN+pxbgihFFpI6y79jYPcSrYau7Wm",
+	"EOGm/5GrGlW63/iK3csn4uo0VP9El2d7KDZ4A8XCmGfOwNKAqRBIT2SYi92HK5EsgPiSHAt43qxC/VLw",
+	"wg43pAkVY+lnT7+mjZhP15waavf577d8F06p8Owud001be6Ts/VC8md3PiHkRBhI25HSzkEDxSGsS+F/",
+	"5vmX6vM+fLymemNJhP5y8Jf1QGfmKl2K/jJX57KI9lJkED483aC6TVU/IWZ+hdvE3MhrqpHZhZnpejUn",
+	"0ZRHUepuhUJ3GrdkxUo0RTA6ZBTE0/LiSuJd0BJHqRLv/F+6nToTmfPp/lqBOd/OJpjpJp/ef9cYqnOi",
+	"/kRAR+sBQ88asCoYtrVuv5jd+rYBo+wEzH4lOz7+GnBBqHZImUGWKxfUH9n7nQiFeZKI03KFyIlK5rfV",
+	"tYhw5Ayx/FN64uKK3mR99zupYMfcHVhOVBv180FNcg+BUnFPdBwwUy0DzHo9Pg1F3sGtQXPUtPfcbR5S",
+	"FojCCLK0tgIDhEaFgqvXpl3TqnHjBeJGa9lrSekt/PdRtEJ8EmV2CYfQ/fd8K6l9iO1Wkr3/SbO4lWyF",
+	"yW3sgrN6bAjzu0zeHWvi4VdrgN5z1VadgMoTD4EICd4mvp4oNxHpCCDq2IZTg/sKBeQ1xeY5DtPNgVtj",
+	"PEyNZC9Qs8p6/gW32fBmIofrfl3ouBlJWl/uo91lNrDU+pGeYclZwPAVss7MVFcaK9+Ppnmu1b9ClFrh",
+	"cUZwiM6rwTuIocQBPDYEz13NCqfrKV7qAW5LFY/Vlwumw6y9295ro222Udaf2Gpepfl5pvUvY1ufuFjG",
+	"DTn5aqAhGrIKS4jNmxRHnJ4TxmWFoJWwtNBX7vYGli8Ncb4NlnIq3cwDL8YWWKnSR1ZTj4ValNrPjUwa",
+	"5rrgIuDPp1H3oQJGMfOt3/z0d/+/Nmb/CxqNRe5KyI3OO44FB4SsgM0MrVIWHm6mo7HVFlKqzE1nPI9+",
+	"DuenKqjk1sEJX4S/sKHZFCEWHOyC16/69WzakE+5FbT9b8QRrxXj7WFpuQloXIeV+F6KTMhLkd+MWNyI",
+	"ruWRzWJZqWDbWMskN6tcjXilNTmkJotQRVeqGhsXsgr/3Iy2vBzGmi1vKih4iVBLBmpsUm81aANu4OJi",
+	"fIfrfQL/glh5HDGHBODlPuBF4YMS/fub4KHPOhlQrxpn+SYoNI88uq53wVQ2OCg7RJqEYstnw7IMpo0b",
+	"W5ZmpbQy40UfbWMpSIl+P7SXgdrNLJGvJVsOQQTwOLu7n+/f395jvoxPiDlwUGh2Fp7oup/d1DmqNrib",
+	"dMfPRcKmN+7FIsBViJSxQzGlaBg/uSjiXg2nMOOdBfits5jKi0fl5C5GhaCbND6Y1ZuiSRa6QTw+Of6S",
+	"/WGPhc7R/kvY/c79H3/417/dObtxY28WNta04xO2232vBo28GPFmRiLsjH/9WzxXQdWJR6oew5ViPX0M",
+	"KYD7fU2MiajU+rLwGRT6Ass0x03869+64DkF2h0XstaeDTqzESSeyhcHMbauhjIbUo3ujFB08RlkjZjn",
+	"HPItWsa585gsohvzm3wpguVTfSEb8c4IwvaeAY9ol3km0vN5JZ/X8C1V8D0LDi8bsTEeMHMlKvFsAp6N",
+	"waGdOwVZLWLXgLmhYJKQvhHFoF+FaDe7HMA+gHMyF72IdRgGlWxTJRSZCRhS22IqDMFoSdg8g3YzG9uo",
+	"o1gjQ0QzOE4s263jA7sa6ySaR+QxXZENUE7iWue8KGbiGqGFC3kp1AK0kRl8yYVrhlJL6v3D0oQyoc6u",
+	"3yikGAw1OrVwDOTr1ZH+WaPiELKoIKHo8wvRH+pJUyjGV4GRcDQl1849G8Z1U1jjzTAzHMTt3AC8yyP1",
+	"DIArB7puLKmZatZ1a7uJ61ZUqq/Ha0WChdLP3fcL4IMjR694aVaFuPpezISRhrObxERu8Vw2b5OZUFIi",
+	"eE0UnqjvDeLpaLuvT2KooZXI8L7axX29oTbtBhcGydfr0fUY7XtcSpXJMXf2/7HGbOIclOHIg454Lpyv",
+	"MJLA82nle5agL4h3I7Zedx5yS+HgDljDjVCKwcQIw8wkG1aeyOiPsL+31+6wM2GZtIFqlWIe6R5A7N0F",
+	"BJTTpUWxGogKuJbc/nWzida4fhWtx8HFCsdvkwVZNLqdhw86DffKaj+Zte6PyivCQRihFracKOL0uIKA",
+	"xm092EZYgjlI5J6iXKKtNDgqu8REMd4xLiv5ZSKgc6u6qdozoMcRjPn73z8gaxVaXTgn0djDzI+XQiC9",
+	"vhn0zCRR3IJ/6Oeffb6/Mr/ojS6z9fVGS265RfsArJagt6H5QSrBrzgcd3dsgQicixhKx2vr65RgAQP4",
+	"M92QjmA2X5NNt+FSU8ozv24zGcRJG5yyKfstO++y37Dz3R9/uD5kaQ0cyr13r0IUbdpT9XLw796PP1z/",
+	"+I+EMfz5/qefbu/BkflqDqKxBSo7dS7Ki5/+5j894yW4aOc2IWYdI11F3k5QJqLYOdVTcyGjByzdHxfU",
+	"vZz9BvRCEAOVt3dau/Dzeidrf3feTmrwRT31R56w84RlCcu/PWTpgzWq+O4iYVGxhF18ewgZ+qWpaWAY",
+	"t4grkjCH2O6AQmaURRnrTbrd+4J1CY1UqkFBkmTCzmvvHNK+cyIHwz25PrirjNPHGctZKeEYJD3lngmW",
+	"w74upLo4ZGh/L6XwmZXPoeNKXFDQIFTLXQVUc0/lcjBAR3VMsNVO2EW9X2AhGAkLcPEX7Lds18/E/oun",
+	"CGc/1lfCbSz+4w/X3527+YMJF9fjvuF2QtMRPmrt4tSL71o//d3fn//4w3UbotUXlOrrwcAIS4WnsAUX",
+	"1OCXbdr9tnEjEjdDAer+OBnECQX/jnR3Z/rdXpoE70SM/abRAa79SHA142BI1W8lW7UztJVshYMD4MFj",
+	"OL8P8L9YGYE5RAOce+BGvKbfHZ74p74r0a/nvjv47A9Rn/DBEz0pXzwNv+SlqH69cB3FH4+vx2dxZ+cf",
+	"Pnf9fZdsRYAK8yIhN4TYSmAKaZT5AXHGBrKwojSJRy2q/CEj1S+hGhTSWJeahg0mJd4Q8CEt0HLU4zmw",
+	"841QkJ9jWv6m4X0z1Kzk3jznLdqH6BwW7j66t+CmQhgmzMWT/tt0xiNsd+/zG7iE/VtUGe3ufdasM3qB",
+	"jOmmCCA3CDDLpYH5XWBZ9W9vErMGczAa2wW4BINJUfQXytWFzl4v6lPhVXZzpUpdrIILWCqaUc1x33yd",
+	"84MKfYymcGVgEq3qDWTRsdDjTXAMsJ2V43W1Lu7pzSTR2tJGB2XPyT/RQWlYeLe4S1FY8SPnGAuISrMN",
+	"Pfi03lA3WWezBJUV8GzGbnkYSqSub/i2C2ctUaoYSSWNJeqyQLRwct7+MqEPY+TeTIR73QQxtGxXhglo",
+	"XMNZb7DK7feOYYUqPwfTHMczFiUTCviUYCzDnQZxAp5lTtFQgintN8Jrjd2S3IhXHoSovyuggt7X6ekv",
+	"05Nomf9Qw3zf2A/sdlDRluWMIfekOtA7KCnWBXJHbcH6QcD0/Y1Cgano5nG/lDzyJjvlFEs22UgWhCU3",
+	"oXD1Z1xEsOjMRMwObkZD7EewwVHEjm98Epf5G9ShV0j3gyqpegjxXCJGFAEdtxvAYpxFyDsEwJMr7eG2",
+	"awhcoNYancuLiZ6YPpRPbwoCHXsUrbGzF8DLp+juRvBCIHChl1v1U1zbko914XPb0teFphx8/tcbeOUF",
+	"W/xb49hAlVTVXB92T7VcbpoYCrRxysD2VRP4D9Au1lNRdrd2wtKJcm5nfe/XB0LiGSYg8B5hbu9VXL9L",
+	"pK40qb+8rKm07XsnAliGFGPrWErUljak10tuCrIw95mMXDSXqu38d1GZCDyq0Yek8nEEM6I+t1yqgOib",
+	"DqQoClE24/WOBFf9DaOJvE9Uk50PvgGGIAT8RbCvnEBS8tVw+DM56eZt+8DGXSNUXqWKxm8b/VcTd/b9",
+	"cYogL+GIe9S92wCYkXkDukxzij1Y5AokNkzq7JpEVGB+RyynqY5t2Iym/iV5MS73XXxRijGnRTizYrxp",
+	"mKNivJBvJtr6PTXmpVCWLGOTMVicOCHosEtdTEYiYYJnQ/cDyNzoaQVeZnUhSoSA/PEfIGIos5zw8xow",
+	"xVy7/dFtxuP4Sq0uXMUbVoBDvd0+UZU37NHMhogmbW6wUednGm3eN/q8EKMGpKUnx+zh/oPP2Ji+YOSV",
+	"ZOZXcJHTH+WWR6+rUntsO8dZoChCyjiS6ptdQRakF3iiEfyEFzJnEkwcbjfqwYBMPwzuAfLtclmu18VT",
+	"hKE+gcKN152qcOTm+XQ3Kjbmdtg4HPeBY8cXVgBC5V9vO3Ft+wT4FKsZLLFzTiIegbLVP+h2FyZ5npjm",
+	"dr58+fIFow8wu0ENS+JBLZ/kfrcxYYqVtim14NlQl5YZgq8KlMTtH6ilsav0YN6l7dXpiVduTr1PdVyZ",
+	"v/MnpTpAXue1EGNRHrhvDtwOSTtbde3KqkA2fOvHGGH8LHHLq22cg+/XPCAvff5uadl5KfjrZqRthG4Q",
+	"ZXP5mS1/wDj7q7PnX7EXVIhJZTWB4up8mrB0B4Fsd8jgo/Af4X5lQMvdo7Sn4Gwen32N3H9KX0j39sAV",
+	"5yPhPnfWnwDNSYzkqoBBGteqma0gTjcUmC6bYQ+Pv2atX7cbmacmyEqM4Xcf2+kYHadVxPt5+A3Lrivh",
+	"qqyZig0bFNzeUC66vklS0eutxI+/aVb/MOEFMihnwt4k1iF2UXnj60JaQhjJCBt/6IiyElUqbFs544ny",
+	"UmYQH+3s5w1BVCTKFWswTpPChjHhzeHBpW9QVpo+aM8npbhBYVC4rgluO1v4XcNCnfqaNgH4joXNpNrI",
+	"DqjG0QOPVUOWS5FjXBdmswhCRotTgHecZytCm7UCU523Z1QKJW54D0dfX9H3iHy7/eiupoNBqcWE2TSI",
+	"GMzADcoIoA7bV6W0IiU6ig/AMyhlV0NZEJXIueXn3OC8cZr+8yn6KnjICdbCSuBwGcCtedC977L1nIL1",
+	"fPsIRL5Zt6KqcSdyYcMbWH5hMr5x5f3v51hFhXxlFrEyPPdysWGtobZ+XKbNCn6x7UQEhBjISX1xoZnV",
+	"PopnIC+cAXhDdbqDx6kWciUu9jw+zSbQNKGh5ZA05G6zYM/Fmes3tXaUpSQqtwFC+4ZKYfLiECq7eZD9",
+	"wHNG9a2CrMp4llUh/nYBC12Hn27ge3XZ+GpmWahD4fuZmtcB0SPWNOPFAu/picL83ZQpZklfF3+xWF1d",
+	"LznXWNy5+vIlYcc078RCcIM6/SZqBuZEdJDlRUy+XPqI2F3uECgd1EWqRo1R15ZJ01MeZBf5BAIOq+Ka",
+	"yGrtU5xUga+HLAVyNxRFnvaUv2kq9srD9SauhoRN1EBaigLTJTOTsSiNyF3MGe+ptZrt+GF4lDmXCRij",
+	"gurENpob3Ex+8FvJlu/52gQFW3xRq9A9PI3rdc++CdXjCs5Qv82OqVT9iVniKEnEGgk1rKfSVwvCtvlF",
+	"34hMq3yBg+qAl7Qh2LkYypD1Q4LgiGEdPnSVG0vRGvUQrol6rfTVAizypWqYCn5vHk9PWnYhLJlCcKSt",
+	"iUIIHJjxBO4tCp0leWqiXJaMcGcnlFGMtxfQLlybBt8lh5wCV9/2tucGtvHKnpSFY+F2a2K6w3VaF/DR",
+	"t534JW4+/mR7+NqHkG4oFlDQIHf0G5ZTWXPArv/7f+jCTKKyFU6gjE7vPYMhhe0Yqhb+jnWN7J9/cAey",
+	"p/hIT5SFJ3k5ZYOSO4dHyuRhKZVfdYkAHwz1J6wkU0riA4iLOWycnqrKwEczAZ4mqfHNgUv2OWtOzmij",
+	"hvwxnkz1lMel8ma20AxI/8ZlaphBoZiTs3iWlSKXFt8n0FlQqSIqsMoxUCDT6OhWGnAMi8boogaINJsA",
+	"MAriR3PWebsoe8vNzNsUadlfiBVNa4cgsIMQCbgeCt5sePAapYKZpcERDBq/MY+z0DtMj2Pm8p//81ay",
+	"9c8/NHrhLIbT9kdyU0WAc8DxUajOuq3Ha7E4QbRf3zrfIBLP1hq2/0bLVgab+TofV/Ar63w9KZoXzorr",
+	"5uVYuE7X3TXbvO7213NSuO5uVV9Xe3T2XDWdojBpYd39vLihuaHPL0lTVHK0GVY4OsR+NfO+VJX7agA5",
+	"brnoiuBLTiZMUj5kuiypKws8C2axycP/ohtye/7d3JKcxoa62bQTlYXXA6y9V5Lu2NVrAzcn7OSksI8v",
+	"xY3yDWVDdEBAHB/aGwgLgnwkJdVwftNXlCTu6cmzM6aEyBEvkWcWUHwxg5tDVOSM2DyW8aI4YDZwAcEW",
+	"6K24CUPrL7kj+Ju+yvgWAOxd8aBCDYnnKZAK1EpwN/YUfYhyHIEfUzVuUC2EmyAQABp1+7Di5nGoKVzM",
+	"OUuJI0xdHRIvSGXvmQ5Lf/f4Jdu53N2has3O9/RHX+bvUnTjMJ5xgMfAt0rHGRhkjhtv11tO07FJPRlv",
+	"ZO/TcqI65AsMni3Oe67Dc/SRoZxNLqdK+B0LUCnqtuh5CJxs9sFYA+FmNdbJxvqLRfkVXs47SC3OsTBv",
+	"LXDRKp6Rnc+5sKaX3gJfppfxhsZvSDRSM247GyZGuR3nnNXAnuRb7ixook+ncH0pONC541BR9BB1FMe+",
+	"SvLhvZTgjWW89mJddM1I57EgTTS8c9oBp+xGPFc3wrQh7eqKlAkRFVp9U8T981f1OoaNWJgLDJQ7NmFT",
+	"SmU/3Y8v0Yfd7me7Dx/uPdj/bL/78OHuKvelDZPM4L7tL/AbM+LNcukYrRACsM+kgtnHBNtw05BMg4S7",
+	"dubee3jz3lk3IFjrcXowepeR1wGoErme3TBzez3OlhEWOZ7rKCnOUp/XGVeuehKbyDNrmY/XLKnw1G0B",
+	"ozgp7BMh8g/g5I+bY1NBhhitO0kdvDx+rTFODbkZpD+6OgurE8S7kd802/CsSLfhUjnLWByB9unKuBo0",
+	"IM8Ui31RFowUG/OlF4/lVGQuCueO91wltC4rEV/mDZo7J8KtWCOPgrGhzs6Ft+cu33LCxiEFUyZmlezw",
+	"aRMm3hrwTa4wJItGJKdmuKZNAgFdj1efY2j4kf96iQb4q1ou9TpK0YoMSTNrFvoWUeYViYtmuhmHd5HB",
+	"JCQlXJuBggqPQmH6feqqeFc9uElU0G1M/vtmv4ly8YBsSgOdgfTwOPaQHBKMPGln8Vo1rsqkEF9LfTPT",
+	"rLtpzZJs1iAeX0ISdacVlyOxoSLBM1bzSjYcw7zrJHQ1XC6723uGXfESjIcJwZ/5V1QBaaibjTxebbYi",
+	"KMyWuoB53CQ3R1BL4SBCuSSa1OblUhvndyknCu5dsqh2bklc3wjOzsERyWaL941U7qsR3wju5qo28vUG",
+	"Rxt3fT5qojBQrGmT+gYXRL1ZuIegTK2/frpUDNv2JyKymblclzxO1BNsHVwQtpLq9/HZ10geb5o/dP3A",
+	"gEqW3rTMBhlH9UJIgfe47jYP7zydRHGdDQ44JE54gKUFJHMOiMmEjQHrms+ifJIH2vqakRpi1FrDOnMl",
+	"VkbsbpaQtCZ3hRUM56URSy7ufrU+4biu4h8nyqtZ7p4rrihIg4Ya3mG8dUhLkrw/oVn3MDet2voTiK1/",
+	"gJwSd5zTd9MQ3uWQ63PJchfM3k1RBG9wPX9Igh3T32WlAvTL+xDXgI84a1Kao3Qw2WvE9EPN7tNQ9zrU",
+	"+hg9wR2rs5hs3zPhpSFo8BHPRU+hvwvGp4LxxX+yHcq3O+wxuJaHNEY81H3PVO4W6MsTUmixNLQFcbyw",
+	"Q9IDpzj0pck6NfNMWuI7MMJO5OSNA1pHB/eAgINTxm1PpdF+TMm4FYo57zIo4YLrsKDIydcD+4ghwFX2",
+	"84kqhDHzYLbSVti19YjdDTZzlGh1DZCPmdtxnnATPEZEuHH0CFiwNgn312nDPn6wGQBEuGqXXKzVgBaS",
+	"pIBM8EH0RBvwHTWNUYP0t4FSfk70cpriNVENKs7u9lA0FhvsdhdxrOukuswXWGMis3+Y/TXqW83wNSUe",
+	"iUa3dDrfM7vi3WZyyctp3/veNWStL6dAq60oIwc96/3eMLk7eO9tuyS/mALgpuno1wq6JTfCW4/lpWqD",
+	"H8/Sowbf3CB4/P3zPCaL0kQpXoTb916F9gHXKcZtOU+X4K6Jeil4m4YepU35sN1NhZI2JS+daSyomOLE",
+	"gzeJkg8mLnIKbYghxefgXmTQy9KHrkvF0lpRXMO0jeFplGImCnxP49VODymlty6ZEtIOSVV3S9tqvk/r",
+	"7av3SXo0x+LdwIaAnJz0eWFNs2sUsWwhK6pzmQEP8JJnr4UFFmnqgXjrDvqGtU6Ov945Pv6ahYgox4A9",
+	"7P70N/9pd7fLfp2Au+yO52yruML2Ie1NDiky0dXfJJ7Ho94wI72xA/3NAxgwso2STMzgYl9hSpIa+7DK",
+	"3IpvlO4pPRagTa3FNWDQQYuSpcAiFsKKtI1Ov4XGprQSSa0lq3WHHWGXsas9tdt1bVGIJQ9l4RteOg4S",
+	"Up9kejTSio2R9mak0n384ojtdbudz7dRoUaH1LSJ4eUYfpwNWQRAA2Ta0QHngZL6uU2b/Jr8uBoUTbra",
+	"G+xKovcEQJojeuVEwTBE7ncBzQDmhwdO2bsiNSqgqx23NuM0k7y4xmLubQgyFkZc60nTGauxazdLQN6U",
+	"z7WydQjlpZS70WNv5JC2AqjqqBGeph7Sc8EvBQYHoUcVIRWhG8GN0aVugjUa+5mtd/ESR91453pk8Vkf",
+	"sgzRaUs96tyiq1o4xL917d6Fa1qUHRK/Qt7gxfMzcpnEds3O9zJ/t1N9adIkAFJ5gKpWte6ZnhQ5xtSc",
+	"C5eVDrH05+GrAG5rKBgFvLlUC96TlDx0D1k644sSoremNwS6WuKeJ3P0zSNtAzrZDoTwXJC8ZaekxqT9",
+	"S8ne2TFcDnfp/ve+4Fqr0mbHYXi/LK+625Aeb92Pbi31nmf8nD/Mbbm71fw9VxghY99zOOkUQwqL7GP/",
+	"sJb1zZOea643+Or41TPEp/BKSXeB3TMz5JiCxSjtW1p7hZ7RtelxuYADOB9yYVKtdsi6mXteXXsVaxTW",
+	"w1PbBKltkRffvC/izMlsWP21Ux/FbNJfotZt2aFsBKjdSNFGrZub2Uk2NSnM5jS+MzTes0yPRQ17YaLM",
+	"QYVagVNzABs8mOIOXMonB2u9psEfGzqdKOMRLegBNXBK9eMjtIaZU98GPjuihqC/dZK5sbeJ5xfGBcdM",
+	"5ETwyBTiqm4AwkHp7OboCxUAVQO4FAnpzaj3CyLjmr11QlVLAZ1mDw1KrXcxMrk8TGF+JrgxizD8V8yS",
+	"00l4uKlNYzSRCkSz57y/XYdm6t9scklFsMSp3l2HNTgEVwpfOLH8kHXrXhXzs6C03SybQbLldCUbds+V",
+	"2rB7q5ZwIV8Z+MlmqIeA7uCZSGSNvl0NfhaWe86J309LtX5+dsNxSSqa0EhVqzS5jWLLv/6tn1nKL9w6",
+	"3Wu7KHf29Pkj9tsqmTHyOE+f/4H9tko3DFDJEJvZN3lKQX9njypH3woQTekRhvEjrFQL4Ykt+GX2FCpM",
+	"c29MdeBSEKFHIFV9tBtS9Wbnp7/7L1c+ZhErh7ox7o6+noeuSnynagl5mByBvGwcSlVLQEhrr0KdCbl9",
+	"PcYElRQ5hQ7S62rMUYGkp6pZqLqpB8hPuh4cumzEJPB67eQBq+YygjYpJwrhAtKRBH7OhZ8ajLQb6VK4",
+	"4NgqHFUUMK9z81dHKYH2Ye+4BjErSO17unP9QNe9WsNuO6L6qwdfQEtnee3ZU2ySku3X35y6ps8opOtM",
+	"XihuJ6XYHCndCmXBQcHfmotzQ5Z4kd/DvI5olXelmbGgqhyiUM8xIdCCbIu+OTPkew8+nW/t7Muj7b0H",
+	"n7LWUFxXsINcaYVYgoiBpAdRZ9AfVV6oxtiOuuf7gltvHRFycV6aEVdyIIxdoMB7UUplnW4jQXhENBO9",
+	"enlMJn8No7ISXnKPNjGcjLhCRBNKzA4xB2aor7xupFGd4K6GCpXLs33o6+2AdlDSkeeykLY5aeKYurs4",
+	"ec9SnQKsR1/my97S84b3tIaNAvCrl8fri7Shnj7O7QLnSD6i2HqurDfZFfz8niGv8j+jhQFAfe/fv/+w",
+	"MmTA83uYutqIgA3oYrqRTmklqAapKGicrIRKWzK+w/NXL48PHJwPFKntH8Yr/BGem/ZsanLINPX9/rtt",
+	"+mOv+uOl/+Ng7o/Wv3/7x99sfzv3vN2Ymwp634dxNi4SzERe8iteLFMu+a/URgrkqtT5dDUbLfOt+p6K",
+	"918S8urU9nN1UOLtNr9l4lmYo1jJHMWcpQELeAyizjfID2V82Q2Eb19kpetFVPnSfr9/6Mv6ITobp4pa",
+	"i/41krs1c0wlywhhPQvWyrC7sDV921X/G1cg0lrfVt6d1bAC84iiwIF8QJegSqFHLc9r5JZb6uvecR/A",
+	"M2huUldE+kQf/0/iupIEy5O2Q1FeSUPeLGFrfdA0Ebe1wZ45z9eNfbE3iXqiq21x3NPy054vekFpVzbD",
+	"EbuJbVhcjzmm5pmoTJSWS2WnazZHbr9mo+a81mod71m/fL+HMkvpXKGbUazGVTKRTdJy1RKQNKh7vCv0",
+	"RiMPhUBTsMjwh6hRs0tR34aTFtrA2zv4T6V3gCKkWxIBjCga/5pmcjNBU3yzs0RIh7LmBrl9FDgXF+8U",
+	"i3OWJY8O1ziTtE2iIdZ2cH2zrG/qadqrNV7HQdaGKANCvc1e942uLFocU1ITTBnu8jXBrV2dp76VrSQ8",
+	"O4NGot9Pqd6GPt+A762FTGzkEu8bXcllVE2sM+83jLqpaPN6t3p81c1d66f+HnbhDv7Eg3ed/7uKxrAu",
+	"AsJHUdwznfhK2IS7mbsrbsmNc9Hd0OAUVBGfe4b5ciwqx145RLaZ7t4A+fZnu3duYY/gZFWn3SXCRLS2",
+	"Kk7HsNYcRWCAed/uRLfdbIbfu7r9YsfCu7oL19/t8QW1cgZqF9aqXVtL9sUT1EEJngPL9wpv1Nc32Kv+",
+	"ClzT7Q6+viPCEu7cpfNADnaHVaITlw9ntpVbcxZfesFHJ73pEnjpYE1nkCFKIZgV1zbKynXogIltqQuW",
+	"DXnJMytKoFSZGFtm+XnCCqmcsxtHHMiylPxCsFLYSalmcs8HF9sFyee/6/Wuu91t+O/n8J8v4D/H8J/H",
+	"8HD3Sa93/dmTBdnzX4JwccMo5htIADcBCFhgjos+iMQkcI3XE5Uzq0NkO24rxVxm0ApKZ32b60I1uMn0",
+	"eBN9HHze1AD2qXmcRmSlsB12NtRXiqERTqtMHDJpWcaV8/ssBXc+zmt6UlGLicc6dgNZmd0e98sNGSDw",
+	"X++jlazUxQLyUEu6Ttd7ITMY6lDLTCCGvjGImE4LDm7vYDbEAJPKD4bOVez6wlpe7bC/txewWKVtd9hJ",
+	"yMGA/rhUDObXwWbwUjjLlq/ifEr2Vz0pt8VUGEpJNh96aoQ1jAZuRDHoUyuLPPM32vHSgUJhGhjoKI7e",
+	"bfacUWxCqyrDziXmPGt3WKDx+LGrBhmmaAJR4SApbxGuCtwA0Qli0oTp2O/edw2jSifq6T2DmiHs0n53",
+	"f/FX5UQxXdLcd9hTwS9FdSfMHF7Wwg4lbtESn9C33XnfsN77e5sm8q+Iwy1wbN8MNUwCAglj0MfEiIq4",
+	"HaL1T3mXaXJnd9o6PsmlZbbkssAbWF+ppux33wz1qKqQQbIwdQEb6YClZHFyaepQO+3z1IEzebVY84ns",
+	"Oj31iCzzBy7bsP+2psPye4F2XVrttbSnqD+8QIubKNywqUsOl8rvOjMh7/Cemrsnk9uj0NWe2N90SzSj",
+	"ybuONBLVUqjbVOyfcyMKlx5nKU4YtPuF//iGuEl1YIh5dRk6yKwJefWUPo4doxrSo1rNIGslJtCVROpy",
+	"8m0CmghjgixskccR8xOSeNpeQXGTgmszdiBkbFxrgl+Er31eyvW3I1UAZZr6YcuJyjznNnNflBNR6eiv",
+	"pMr1FcMguRGl6+GK7SbdbtfPCBBoEPvwe13kwlj3AWJMwBw3X1uXHuptE+yNGCFuZVR4DY0gqOGqRQiz",
+	"Gu38sPFqHYynLHIPW+ZBXD8j74Fm917IdCOY7JsFFixw3jMNm+bMRXZ6w00uLiXOHGsp9tPf/T3bXZS3",
+	"MJywG0aaGVGIBYHxPoW9byEcYYHhm9qINVhenD8cNExIDIkXt71w/V/EB945oUFjhUaPg0WBa2GLMu7o",
+	"EgVxmhiFzVeC+f9BQpxxJ0u2yr55M+GUca3Q6zqY1Tt+5lqpPz2J2qy/ibzK5l6dhd7UXzzV5IIWEa0P",
+	"AEy0KbC9AIrfTDRrLm6Twm+yUIIQhKUHrW8NAi6kz6UWU9ORpIho/Ni0FzH9/fi2nv/gZmhUi/UvYU96",
+	"7P3mYFLKuqQE3KQu09tA2gSOetioNw0r3RQra/aOaU4IbTx8afjW44RGa7a2gDCDwbk8pjmKP6qFG3kT",
+	"UUhnWeF6VbuwvgdqY22iR7iN48Mxmch83j2Mbw+Otp98+/3n77bjn/ub/Nzde9eoM3rVGC12xDBeDH13",
+	"M52HTOOji52nEAY2cf/+cTwefZvO6Lic3LVAw/X/2v5/f/v9bnJ/QX++5qXkKhOQbrXYNO8vJoTd3THf",
+	"7aWJS8VCtbHBRGWxP33wmDh7dMBAacjSsb4SZZr0lGldtyFuuPvjDyN+3bpO2HV/JFX7u2yXBGv8idWY",
+	"ES+KmgM2xez2VM3x4NA1AbuCl+CVzFqOuICKAlT2O7udbqfbjptnv2HZ7o8/XDeCDaybZinbXfPDBWEh",
+	"M8fD4/JDTqZst3FTf11RhJkkKwhATMSJq2kE80U4E440OQeThfHQ8X075gaO4qAeDrLsJnW9e0EF3a8n",
+	"WJ76HsIsPsR9txhf4Cb+XO8b4r9WKpnF8UZVmtXmtPO/foQhFN0ff2gNUP8DXKiLkGjvuD9ueA1hhU0w",
+	"fI257Zddk6zU2kYg0EQnbtit9ed1HTtjvDvX8G0Bmal5JeCaffvrR29Jm1mpQH0en5ByioTuNV1AlsWP",
+	"rY4QWzmXtxZoXmFwz3GMLokWTl0FoIN5JY3DqFhLIR9xEY5irnZI85t4Ptytfq7ilY1i5NzBjKDC6/zL",
+	"mn4p8R77cIC4TucbUiQ1Co4juDTclz4sfiZ+/lxgxhi4VcmrrsGAGMnNlzPkft3DN7fotYrmh7NCLTF3",
+	"ruevTqmklRBhDzhQhAiSaWWlmkh1kbLWMTyN/QPiHsU3pquIdqIrv/7VGao8CdXUNkxU5cy4buArdJON",
+	"FA97fU1NfW1XSAj1JjZY2lsB+F0AIxHUPFccyDc3k80g7ZcjFn3lwhhrnyWMLAasG9yMK0wJkBxuimi4",
+	"IINldwnTeuNb84O6J69zB3gPxWjVm/bVNxhQecxVLnOf7W2DPQXYuWIBog+OQ/hQzWyotVmEP0Yau6XV",
+	"uMhWNjFigc55xK9d9CVFiUJQTrlA4VHw8kIYy/CTyh5leeFCTDFaC2tjhKE2UTkqgaRhmZ+tmP1zqGFK",
+	"20i8uIlmVlvRnFOdVw1jU+a1HI9JzqHLG1OqHzIxGttp7EbfZACbjPr83PSb5udf/uvbX58+futnBfjc",
+	"7YwX2aRAdZenEGaO+W3q3Q1nIUQarzok34QPZw9JVUVtuAv3SdiFSdjWbjUWn5vGkPunghu7TdpZ47YT",
+	"pEDd3bn+rtt5kLKf/uZ/g1/T7/ZS97oWbAFMNO8pVCMQAzILrYO6Rad3aB0VIyFzzoRlvOgk7K86PXU8",
+	"LPWIW31RdtgX7LPP9llrr9vda7O93Qftjldt+L5Bg7s7oC748R/JnZv31LzGI1JnXIMKg7Y541mpjaGz",
+	"gsltC33Rwl89dfaoHTD24HFtGO3E5WGD8VJ5iJ+8Uuzs0aELguQ9VW0rPfDEBG1SuPEoKDZoTdyJ5bG/",
+	"BQCZp2E39DWuk+nMhoO72Tcd34ijWBQfH21uH/AZdDZmMoK+8XN0qBbMO38zUZa69OjtPbXwJDE+0miq",
+	"1AajQwk0SekaARrpUkBwPFdsyItBE9HqsMc4HSSG+kS/vCiqs2mYVGE6+tVjQJMrjJ6L4BnIa4wsMVXw",
+	"P4AW4Obs60F/JLhKWQsWgJRSbAQKN0Peogfsa162prBt/vVvf/zHH394+3/98Pa71t6//FM7Yf/yTzQt",
+	"aOuA4RSK9g2DbaMVKxR8jlTNERhiS2FOYRV6qlq/hEkrSpxWeMU485ADrBRwb0TYeH5i/uWfCEFvqK88",
+	"+RbGyhHWIhVLlVY0qLTdYU90yeaH6Y5ST/mzhCe56ilsbmlpW/stfvaojiWgKJbU0Qf6y/3ew3+n4fnU",
+	"/abnBv91UAS1JVmTEw9U7CvqQvh9oi7P3pT2r2eezf3eayj072aezf2eK1R74JAPwu8XMK7ng2c4qpjy",
+	"Ph8H5nwj5CBPFaodzRxNSBw58eL6QBZFEwQoyc0G0BbWCLb1+CHvkq06zWmywc6aKOsFklrTS+8lNzs3",
+	"QSJeNkXg74WZwisH3crd183bnU7YjKutQNgST7ubrwNKu46Jht3FZzU7F4sulxZX3gmOqJ8vpbR1JQHC",
+	"7ULkoGXHj6kXdSARlkajPmBUN80VslXwMRIDytLRYc5bit0/YBzuQBdZdaWrKoeYtFqwXFyUAvoMZYXI",
+	"IckHLMDDB+zXrETQTDPmysAQyCMM7ydYrc+67eAkVclJkXi0lzRtyvmNFqL9byaObhbEfTex2EtLro7M",
+	"djXPH0P0XcgmpbTTMxgJjfhc8FKURxM7nN/HKTzWpfwzckYH7Av8lgTjDH3cvFcdQ2c0c1BzlUtY6lRF",
+	"CPAGxqe05ucKX6B7ZHrIjBB0S1FGHanBBy+93vaj3SanNAd4g0uBkhZ2qRImhtaOt969Q3P1QM8PCdsH",
+	"lyxREpayiV0AofN45/NzXTrjTaR1CqxRAmym6Sleez2X2yoh0w8ldHEMZ8wBMp5lYmy5ygRw1oXMppRU",
+	"xgiYJS9dJsRsY1UJGxfamsShAccovQZP3kS9VvoKbo0/HPnsr1AlVzXHy57qqU8+IcaMFsmD53JLXG7n",
+	"k0/YUegfAwlTj8YTGwFUEw+q1UBeTEqRswyWvZTcA2zyMuAgGQbHUhH1GE/OC2mGImcXE5lzdBHHuqp5",
+	"p8mBsVmnjiHk0AvgUp3fMDxxDOHZ8xdIxXpqXIpM5ALr9NpUJUTu5wLZ+jcu2XHu3TZd8h6nbiUs+56i",
+	"BXVZftwsVzJOKcaCe/9mYMy8qizF2f3Vr9ixVpdC4bOe2iYkILqmXAh6KZhR/LXoZ9jqS+mfBiCXVkpy",
+	"6gELGq4UCDxjvLjCBSultQGmhdhMcc0zW0yZkdchQwcvWC4vcNcy1kr3unufbnfvb3f3XnY/P+h2D7rd",
+	"Dumk/n3aPmAvtLEXpTj7w1N/SkYSJCoEjjEJMxqqoXsNP8gdiIypUGMGIIc7/+7coMQeesbxEpCFFWUH",
+	"pqZSRuH581UO8X5pwbH0/pAJOdcCtH0pGNiXGNFG02GnmrziYa+Px0Ll2yiSeeBFcBChLQGnjLLJ45lh",
+	"Idk21UoSPxmO3HVjWCrzdAcw8lPyN4ciObf8nPTzemwwRRRje989uM+22S7MkpuirJBC2YT9Fb/kZ0iN",
+	"mFSEkJa46bFDMfLTg1MCSZdgmyBBkbngB+A1QokrOCPHd2lYijdpGpIgOIipCiseugTfVRYS/7HRcHqA",
+	"jYrVqq7SKs+Vr1q5JYeMGzz4swe6ggmi8LfTisKh5TirVKrNhrgqVZe4TXGoX+F8084fSAUjO3n8+PH2",
+	"Zw/2GWlnTIdOj4siyXhZTtlX/CuEFFZYZnqIp8I5POES5VqQ7ktcS4O9JlM8vqzZ3j1pS4D9YnXtEqU1",
+	"8E64pda2jb0HdVHqtQWcGdjBShQ4Isd9MLp7ffQBc8SZiIBhrbSJNTlgyJqkwBExdhrAL1xVMEkupwIH",
+	"VrgocKOh1E1yP8xfRkg/6ImArfldjldLCb3Njd/I0rBcZ3QFhjmje/NcHLrda5gZ6glVRBEm8kLpUvjB",
+	"2KGYslxjWRhl4tJuFNyKkjnoesN4nrsStPRICPUguoVN4u9Pkzj6bhKvycHb0afJKAXupIp2HLBdZjX7",
+	"dJ8dnR2fnLBCWCtKkzjSh6XTDrAdffjPAfxnO01oSLxEkcIJ6lQU9heWZS3i/lhakSqQv18pibDTULML",
+	"pIPaolg6Xgb8en8vgLXI9NQRK6SxbjdyxS5KfRV2GsWQtNLfPY7x9qHD/om73dI2ZpXDdUUFwZhfwMyB",
+	"gkUqRpm0pgcw2SXtygMnBKSsBd8yI/8sDon5wg6hsbEmO7mUOciat/GYwURmk9Lo0uEdjoEg6InB5oF1",
+	"U+La9t0ntfg24mpKg8QSvm4nkfoKoy7wYjA+egQ/xi8PaRR0IlwAhxUjk9SbqxbrK3Ftj+lhmzo95KY/",
+	"0iUEcrDquy+5eQYP2x32eyHGfqbCfnBj/W2tlauhLHAHVpUydOufCMjtgnOJpbli6OmfRgvZpiOIxaNa",
+	"D1B9DbpEnH+Xr+ZCHHpS2kpra+/YANzB7kijQsnARGs21kVBPBe0gSfuyL+WhukxfwPeoZX3b/qCXwg/",
+	"Y4e4e+zQbS+ZCZZLpJlEwc1EYOob/IukUwqXcguIKW/2u13c97jpaVsHlwxZ+lyJLe5QklHCnckiBLvZ",
+	"e2/MZg5C3rZibJOIwTZtoOuYK74QSThZeD6wS3+YwOUcBg+VVeJHTAmzgpciPsm0rvvdLlzRmM+IYtjS",
+	"N1DlfNhR0CoTzQyUAAQsoawbDVE3lHN6inhzWO2UlXpihdMYbCCUHblAJAzaFSik95QHGKV2DqAjb+kH",
+	"e4tL+JaYC8PeOtbkbU+93d7erv0fCsWyHntbi/l7y4hnI+LvCHZSx/mtFM0++1MbaiG87Ir0M9dWLEmy",
+	"t+zpybMzYs5KtxPe1mShltLE2xAX1A5d8mykk6OivWOSuIbEdbvagzYkBMGjmETOVcDu6jIT0YU1nxY1",
+	"ceAzUiGIsGfVaHx1wZi9BfHNWD4Y4DLAQ6gzQN8lFZc1M68mgYor3sWsM3LWGgsX0egEUF5mQ9AlrZ6F",
+	"m46YJH/2th5IC91FphlXDzo7MSuaQHmAxDSMaq/VAI31FOYmK3Uh3Jb2Yi7PLByLA+YZWlFW/DhMW8AM",
+	"cnu4p6Rlf5rkFwKVjrgLawWSmqtZNMehJjcJ0vYUTLK8xKpUTQ8RavSHwEX4osKww17QOFskvQLIcc4t",
+	"pxvOT4eLhAJK66capKGKKvgo1fjg9pSDnQ4BVrIkrUgVpMxay6Jj250w3xUpLZD24zQi1SGeB3pFygYy",
+	"7ohrKxTs6J5qUPwczMVRf/IJcLdaiU8+cXanEVrn8hGZuv24kT+CLog8BGmTpa4kmmxdpiUTOGn42qs8",
+	"CmEF5vDtqedjoY5enDCvR/MYcz5+lDt6XY0cBIVKxXbA/vgtpDby9dzvdMlJ0TgKTBOFcw8T/BwK7eHc",
+	"Q5GTR6BSUCKzzv8AZ/vIh28kbMQLUBfAqfSiBlplLzUkjgux0Pvd3UOSlGQehVTrCWxJP1PUIfz6foel",
+	"O0PBCzv8M3CgO7CxpvTnSNhSZsblStnRY6H4WHamfFSkPYWaF6V9LHTqJw4nou1vwcdokfRXHtoncSEV",
+	"6kEe7j/4jI1LfV6IEYhMY1K8S6123NPf/Mlg/hbi5noqfUHPvYFMKhqqBLNDwlJswaROC0Nax8FAYMw5",
+	"CSfILnOSOc917mQoOEvQo08fdnfpHYYO4Qlw0LrwMYUTIGcXklubnb2deroZ1kp7W72t1KPqIpeC5duH",
+	"1Prx2dcsE0WBR3inkEqYHcdZ4D/C/cogc6W/9YEVTrHC3e1zbkTOxsOpQSRqqAGZdejaUPBc4DTj4922",
+	"D4JwDX224/ns1HWnYhKhP9S0D7ye53h8dcQQkbyRsHTM7fBA5iRzpdSJg5NcjMbaCpVNt38vpihRkEeL",
+	"E89H0lDqTjKAxFOPFZG6URrvZVKSOGcc877jttozfzyYmSrLrxN2VaKJezp2gVBOHogCc3gpgM87pM3j",
+	"oQbAsloU2662c5DXSsFfG8YJXsGnRndcc4urkDY7MmN7DrOn4MwlBB5Ax5a+AL63FMhwymqO2GsxRRXE",
+	"/t4ekPMH3S4pb4Fu9FQv5A+jo9TbCldP6uSavszTQ2e9nhjBLqAjVscKgkLDFv7KMVHSa5MqNRNWFCEr",
+	"EN33CmXSWXjGM/3rbacR2T6B6BDO4unTSqD2JPhpo74BqfZrjN3y6lT0Ny30RQ9dMUue+fxRqEHY7ex2",
+	"uqyFCyHVBWHbYFUsF2OBYodWjkJPhW3jIZ8Tp0msRME4EotQl5FSBOlVEH0RAV2rShcKxXKkoB02K7oz",
+	"rswVahKDuIgC2S1IISjLogIGowCdkNHG6mlJvHZ2Y3UxmPCQXvAco+xQ4KPEuUoqQW0E5eL5tJojUkx6",
+	"7W3gH2d41SWsXdtr9KIS90htyFp+A5KCmfZbO2q70l86hRylo83pnKMo7XN00CGPJFOvwWUtVIXk5JDB",
+	"mFDI5IeAAq/+dZMAFqdOITMBRBO6cjQGXmp7r9MNyQNLga2ShePpyfHjr84euw6iknxKXGoLCZ/byQck",
+	"sGW8KLxCyfM4kF7id49fQudwD08UpWRM6QszKzd5vU0kahwGHtPp0zzX6LT7wAYcBlZ4hTTgZ2p+MalD",
+	"843zRbwyVDMnObhKaoPqNB3jne/pjz5MxgGSGNdNjsw0dhA3CxUPeS0jZnjn++pHLcnlzjloV9MDZmCO",
+	"eBH0ldBnp3Nz+zMh9sJbzNCQV5MYsXmibNuVrtw4FbeNc1DWdnXCUp/7zV2mM8nrkihzXTKfKzPxGVdh",
+	"rhNihpnjDUKADHkk4alP6ZfI09nNqcQVGwnU4DsjvjsDYH0lxJmt6iRsJVuTsnCWWnOws3N1ddXh+Lqj",
+	"y4sdV9bsuMOBZRDl3xaibsClKFUCa99C6u+TDvGx3DrYut/pdu5TvOkQbd2eh4W/L0RTYKij0HuAJQHa",
+	"PSe/6kwYgyxpIQHz5yvUxHi+tkM5fYhgn+RbB1u/E/ZL19SMa/VetxulMIE/Y372T84ngNiQVX4I1ARZ",
+	"u2fGgd2E2XjQ7S6qJvSLcoEqXiAfXnMU2Dr447foqDri5RS8SMG4JzC40GLi2D9WIzdb30JRLxEsnOQX",
+	"JdqdxMQQHJ249oSYka1zdn4P6RMB5xZFI63ATKOEvdLla1wi6oQuUftqHODO3Jo8cz1buSbQr51xweXM",
+	"asw6Y8xNvGvhLqY+mrZRGMfCRYjlsIUrAT7nXhQNBqCIBwSz4PlEAm1HX6A1tr2rbrNt7zu5wUTHXQcp",
+	"2nc/Yf/u6NnTu5j/l7GZbNnUk3C8Jo0RqsZJBB7R+zc4gUSG/EUJe9C931OVI/3sqrB0pHPiP1LoCtrA",
+	"04ichbYkerDgtYGG7pB8/8ApoHjptkLufRA9YB11EnvSSk+FLafbmPc7bbOJsrKoonagZgMkdKTRvkqi",
+	"WiQc9ZTSVmbCOKdUUQw6eNvA9jBppDuCTjH/ImFyANbNxDndkqqq4BcLzv4prcodkuNT9IcTxjTtV2ye",
+	"WU3zeeP9CaXury51RlP7SvFLLimmYdnWrnq+ZFtf7u4gh7ZwY3/yCTqBHXzyyZw2G5wcSReHstwR1MNK",
+	"DSptRV6KaONLGLdspI2tDJTgBgixAaTpTBkh4ID8jRpE77+Ty/wAK3SJtTy77V6jkOCcQ2gjk6FERd+A",
+	"0xRuvJCgx7HL7onMfeuOv4OnPdUiNYfLde6PrczbsTsPiFr13EsajGRKlE279QyV7zhJMXiUQcA+uJK2",
+	"UKniETEPtmgEW8maG9X5L75LmmurpyiqqowcFT/db3BMXFqbzBfVtdftrl0Z7orZihr9RRuyjAOG4Z0d",
+	"flytp3rhXVUilNK7ZGt/nVP/Bc+9/yoW2V1d5JXizi4ociq0Bp14ostzmecCvVn39x6uLvFS62dcTV3v",
+	"zM9ExwLloqMyCysJN0l08kGoxl0YkTeyFIGX7JylIeDkzGci9oSQXq9FCesesKsoIyUnniGKmN5GOEtO",
+	"JAKii47TWjsNn2Ln054CV7XoZYc9cQ4VmR6dS+WihY6+enTIUuDskFmQysWyEtWzOnVpPOFZQqC1WtV7",
+	"0GHgLmAcVlhlOcmC4yNrGSFAJ0k+L1ve1hNNGClLI+aqfYChg6zBraSn6o4e3FRuKI0+JIcEhCUqT4qe",
+	"qrtrEDIWjrlWNfhhdCpvCfS7wyaQ9eop10Dl4jBHx2HItKDrkfEaeuB6ZCcO4l1ENCscwturM6SNv70q",
+	"A/LUelXWYMQW1VmBWK1XacDxggrrZ/oxLwspjK0fgKQ6NojX1dAHOGC1DqwTsz7fPmRsn29dXK9o3epb",
+	"aPuF9xJb1Mr8vRyQBx90o6COvZV3dNK8QNXp2akclLbu9EbHDQZHuOlKB+dcNBEEDO6Pl/utX+7HhFsk",
+	"DajLo7vb3b6L7u74xvVgNauuclSa38F9jlABZDgbSAvw7ahUCZEUWmUi8n4U6kI6t++cQmLpSd/pOVMK",
+	"D5HGeZOVwte0QOrFKZy/fVYcMSx18ugDnK9F7DJhq//Cj1R3f3WJr7R9grhHf6Fn8IiWgraotIbikVxY",
+	"E6aD9tjFd306b6x9mA1Dmz2j3mbt8hVShAOFJVYOfl6wRw8vhzmN7LnzDIqlD2ni8JNlJ3OBjP9LOJ6r",
+	"BFqcJvPxiP4Cjmi09dAHLXNE359Id7jWlXVnTuiSE1m5oMIwxtq8l1aQ8NgM42hRxG8TgkkI+AmR74xH",
+	"7ws4FrqUFwjj5P287dDfpD5SGZMZkScck+hukvpq+noAfk4Ws8m6isI169HY0ABu+RTD/Rxf0mGnrvaZ",
+	"buDk5ASoMQ2/QKJECHgfAuiiwVvCUSGsq6cQYQWR0LQSQR1uBahEya8LYalQGnDGM1QTtB09CtPjHKHS",
+	"MekC+sHwTg06e77HjUUXfCcw9tSFsIbxYDgPNuwkOBT50Vau+qjvhCVABH9uespMxqI0AgePqjDfNbDi",
+	"mtlqai7ibo4PwE7h8FNr7ykOCVvThffB9f1wghLjA/TQsz1FpgmO2gVED1AiwJyz5z6jgDO0OMJPJ2rI",
+	"pcIYnXPXf4jE2O8+THoK/b1SB4lo+q608zg7RbTn1v7ennMEOKdkN57Dq3wRwwUL9R2GsNmeou6fHH/J",
+	"nu12ATFnb6+d+PT/VbQsRMA6IEe4lpxzEzqT9d2uSg+oD7TjMCaO7nB8GrYYBoYo4UF+XGGDXoCp28em",
+	"H4IH+0pcgXOuZYXgxivHsYyLvXPngBfweEr1ANyRf9P3TkfpQTAA7AFmgB5UdiReVucYfXF8tXAKCjhA",
+	"9UH4LmR6oqxhDqLAV9V2vZAujaDpg6dZPIxanHb0YUrTR2G0bpXAcyrxS9TGfc247wG1BOqzPmIg9IXK",
+	"TV8JkfcpVD89cIOB7tbIAEwAFPR+GYBm6lyeoHtDeTGE37Seipdo4oA32BCMBUtDg4fouQiVuCgS6ovr",
+	"QcI4M5Th0GFNeo/mq+GU4rsuhBIlx+C21JWqfNNwkttNnA4R9cf+onhPXgcv3C90Pr01Nif0LDAndYgF",
+	"lzhphs3a/TBSUIxQS66y2P5TnS1AMnzB7dCfGl84YenMvY2I5vUhJsts7/+DsXjdNVi8Y60GhUP0399d",
+	"o08v+LTQPH+p9VNeXggq92CdCYDMnehY9Uzkkr+cUk6n/b29dQo71yTgCh8rC6bdv1Am9jGR8xh9TDmQ",
+	"rIRxzxT6PR0xt2+y9zPiECc7LrTtjNXFWuLlDVRAGMdfaPQ+TLExc3mRupG9+Op3TI74hVgmKr4otH3x",
+	"1e/uUljEPuy4WWjQGZ9LxUkRt453Do7yo3j4s58s2DiRXJgw2kV3rq7xu/wOjtRZFTka2MCARjXi5WsM",
+	"XHToOSHVTeIxKwcS8WEA+hBcXzGCmPk8RmzMlSgw3eAVySt4LEIoAyenRXRH7SmK/vX1B9ifKJQPandm",
+	"qFXH++zrD3C8zeXFb65v5G738UD/Qg/02dcf5kBXDvDrqXuWal1P5vCrYEwUWAK+PBXKRwSc5QaMoh65",
+	"/fFKOqS4QTrN1Sln3vGdccvS6nlaSW8oXXlZr91hc0FPHfaiGjsBsMxCYXE19XhRGCI2dAhHNsFYYxdn",
+	"ChWCxRomwxGFw1oijp5y4BsguBFp8m76hk998BVB3BQY0j+xRuaihkQq8p4iCVCXRMgYJz19h8X6fAK0",
+	"QRjSCmDMtYMBZj213324WKqLJuUXJ9dVfdtIsOveSQeoiUV2ZKdeGweghIR8cR2CUJmLsrP1UQb7KIPd",
+	"ub09jk9GX1kPJhg7zkWHfs07ZsmdUkOquA0jwilIjCYy3BFcadBtO2N84BZRt1VZ6MHDrLJqUPjpYtOD",
+	"g2d2TCZh8TvlHOiFlUKNHlrwiZbDuvBSeERYCioP+hrYggeAM0eIMAXEdTm8pCpJjnHuAk6zB3VX4Fqt",
+	"k7PnOyePj9nuZ929Bz3143/7rLO729kjqwDLSzmwROddSKzx7nFO0+6BECP0C4zDJe43r2azmjLWcoAB",
+	"BIGI30Hg/Rl8gerBIcFzz90ip2HxxS/YT+G0tkUX+SvgwkoDurqPHPLPTciijeW5ZNq5xIERBeBXgQrc",
+	"sl9wIG26zDvjfHAHPgsvA2AENRPJA06n9OiJA99BaUHNAKkdeIbXqdm8qrgSXJMQU5dESjmMOkei4AXv",
+	"hDDnsZ4KlzuQzArL/x4zmSbkojcTwnTtKQePiRQJyxjLrTRWZglxrFgv5fxyT0gzCJF/aChFRncRslQS",
+	"pAisPJgGVcis5RluH+AUEJZYS/GRSFzgPEXLe8NLwc/vGfZnrUQC88iBzjuFQw2KzOiBvcJwbZXP0mr6",
+	"3FGonjr78mgbcKOd/AJKjJBKkqSRYIRGe2DNUI3Qm8u0C6e4SV48evKhSKzb9e+tRHSH6CNN/dlp6ssa",
+	"kFcMe/2+sRWbcItY5BbYxGcaU1/Hd8OshwSzmgHYUKkvhSPAPnV2SiSQBm5cPEPmSCgZRwNdRUgxqWaJ",
+	"Q4cdYdVIw3w/XFZoUgxgACfllCWTLa8Mr+BQEER4DSgc7KimfqBM94VWF6KcHxmGLDysQM/gwQDTkwID",
+	"bSelijloAkxQ+oroqmlm5aCe2+Dibl8VQH37mdQAC+271CuRfxTtP4r2H8BHkOgYC/n/399NcAmdrmAq",
+	"78xdN+LTrlzOD8W0EoZZrduVN9WIKzkQxjqwVLzBBOHvJz2FcbnA4NU5O3yE7B1z3N0hMZ1DgXiHMcJj",
+	"4ODIF80n+XL8HFHjK+7jkpeGiZ1V0/aLlIRD/xZFxaCpOwziI9f2C4iPDavR7Bp8O6xa8t782JFiGFpf",
+	"aiWzag8dxEH8kFjCMMx4g6fR57whGwwmX5iR4Tos9e15Xq3Ceb1nqg8PPafHAbQSU87Rb2EqkhnzRC1u",
+	"GEFGUXVOwQYVipIFZ9QgHYJ/LOJ6+dah2jd827VSOmBDepvMv1E95TtIKK+jibE+eUE0R8RBEtomrInI",
+	"gyrPxbCSj3PQcTrfVEIl2Ha1hDEdOYBEP9UJGJJ09hrze/ZULvFqzBnP0APQoYUeutQooB/kssDdB6WI",
+	"B6ZPG3EP5IX6ZbKQ4Rj9TF6Cof2VVPcjO/mRnfww18r73yZLOMi5ROe37EFETGTcShUA1uBwgMgLNl3E",
+	"vX09kzP9F8i7zSWrX0BIahP/kYP7+Y/a180pExq5uSW+sGu6/azDydUz/C0+Z+wkSggB1dZTd0SDcTIT",
+	"omoSFjEwJnFD7cOQD6GnRnwazB5KVImrzqdsyDHPSr1TLhQnYOr7hiklWTBpOs4OODbMuxkWCZI86Z7y",
+	"cJvtuilXWp8ipgbvfRDQ1Hpqt9v98YcB7MIdpUeosocqfv2I4ZsWvmI//d3fM/e67b/DiHHgvsCEMRSQ",
+	"q+PXj96yn/7j/zIToFJlEuzEk9y3uhAlPO6PMwCMQAaxp7zr04//sNdlv/ZBUOzVGXv84oidfbP9+f6n",
+	"7BnWzj7vdruPYo1vfR0P52ORqFuYIrmUOc5R4iNoe6qW1w8f+9glH1F7VCFI49QqzUodzFhe0Qm8JeVx",
+	"OWoMDquHhXl5vQ5gG6LEeopb2LxkXQFiz2ajxWqV69K5pEcaZMSkvAJm+3AmyMwZm4xLpj0XmkZ3Tocd",
+	"qcj9oClQrkaevecAdUFaKiBMTxEWNPHkID9QHBeNGPQjJK3ElSU9BR9xj8yG6+KDkbDzzgCF7m8wJlty",
+	"ZShuy3texJjUD11mHCd/FA5ix+O/k/KZ1Ok0AEASxD/6Stu+fweZc7x6vAokhKMeJ5oLU1VVEofiVVXM",
+	"uL25bwEPaCAhZg8g1Q8w0Xy82JFThN9GUeAltFk7c7iq/ejAYKIETjGBC3zpYjL/ixN/4s79TBJQ3AWa",
+	"sXwdFibE7euJBQrzUTz6KB59EP8T1Es1eyVU6a7WZN0CG7TaX3shejmV23Ek8Y7CnCIDJJ50irTHLH31",
+	"gAifC4Nbumq9K3ZPKX3VPmB8pN3NQY1GN6Ylp2YkyFiWmitD3HZPIT75GpcFMXLwsb9tyCmD0Pd6yltS",
+	"vREYUx/gQ+TI8igtM43qitNFCxNE3hvI8Dh2yIg4Dp8G1peqjzDwmK1NoWbQTLLh7I1nvG5TF7komVai",
+	"w77x4MG1+iGwmm41fiH6Qz0pXW6eiHOSxtVjh1y5CaSVAE5X4QcBn55BtieXGxoD5EuBLoGUDEIqcMXJ",
+	"zTLvkxP1BGra+Fqr5Iet1dh2i+NZNwGmm79NRpq8oXxG5kO0hOPiUk7LRZho3G6OvHbneEt+KZbBLlVL",
+	"/1H8/0W43dRXBY4qd9vyVmX/VVfI7cb/HJko6caCMKM0IcEoVsZV8zAAE0TD5ZI6opDOXS9wdA8ZApKG",
+	"fCFr3php2+WG49al/QvJzdCjJ3vtu5ebxgiir/Rs/9FYst9TwVeSvHsWywgVPXyfyJuYqt6RvNDU0Y9h",
+	"OB+lh4/Swzok/w8TDjzJdAntu9V4nPUzHt0C2d8s0VIKw53LsoTImFGOJQdrhF7QqLn1H6Kn4xuaTtlk",
+	"2emp+DZpklTI37xZWoHrpJ2QL6gd+rQYzvoP/atGgmQFO9hAVfx10VPRfUHezyHJHtWN+fd0IWBWlUau",
+	"nRfFAavSC/ZUpeJqvG+8Wg4Ghh0C9dWOn7GZ/JL+JqVRMqXdJNemtcOOHGjTbtKFXHTe556QmTa7z77A",
+	"ffYXcqdhZ3/2i831YvntNrMV/ZZetCU/XnQfL7oPd9HNEfiIUMvS64Du5PJzuQ/XU4jVDJ+bq8cKgnCP",
+	"kStJqeOTvZ5PgTqLRW4Gz1xf75CqUBPLHATchH2EO799H+2iqLKhzuyVOETRfbOevvgW7f6x8I6mT9ir",
+	"LHOorWFX73bYC20sJSUhlEn4Gz9GURehMqqA5ioyc/Z8+KpJJ3sdvWntdXcBwlFgUoYyvEB8jWkSGS9x",
+	"wCyO1JmJ3u4pF74Nfau67nPi2vlzWzl9E53qKd9RF+uMzZcujgbMjHuYw+rlsBSGmMNCDCzD2J1BT0W2",
+	"+5RBmusICv6eCUigceq0YB43Q32FQygKjMAGEzLd7A5ethRsouSbCc09cGReXQyOn0sMks98ho+7YKao",
+	"8p+Jc3Ija6BvJz7y3pstZlb+MKwwgviTGRIp4W2aOhf378jlWsX10+X74UP6SyeNrsGd72Hb/I8GEPmR",
+	"9/sFYo3g4QnUKKkcamL2SCuxwcXXzNq5Pf1zcHjOYEj+MgT5HGOOp4vT1BLpbcoZBQ40lZEJ/7kb49cR",
+	"M2ORgfk6on8RUVzDBBbBdTZk7Nvb3f9s//P7n+5/9jPm7VtMbCtm96Md7OenF8+VX4075oQd8XCu7OsQ",
+	"jTm3chfikrAQH+MDE1mL6kW+jHIL5KIQkMh/kdD3gjpyl5okUZrlTuHU6Y8i363vaph0N7vrh1HcWGbz",
+	"MWIohHmxAOPpEsbZYFIUtfhY1sIcu1VAJ0obbUh5oAvhXF6qKLyWA9bh8IYdlRda7cmcDbkZYtb2JbLG",
+	"C5+/9k6QALHyn8lt0Y1swbnysXBbHxnojwz0phfiWCi0+9Ae2px81C66ne+RDrzbcVfWepa+Ge7X0ZeM",
+	"qwh8BMgHk+gwD3+G1DGypDBV0lGU5DzeoYrcmCo1jvOmsD67N2h5msjJI+p9oCerGWgc9o05aJ9J+9s7",
+	"v57/0knI/wQsqtt8ISn9bR3JiYLg6Y1P5HEheGlcwDYahDHYpBaaLaoo+kYPzlfY9Mfj9PE4ffjjRHvv",
+	"/U+Tk/vuLIgY1cBOX1XlSqsMEBQ1FZJpUSyVsdyKBNOjUSJFvCKVYFZbXpARnrVSI96A70U93+RsyvWe",
+	"asq5zjZLuX5YOY6EhOpQaCBE7nPIhUjJc3EhEdy2w74QaPDA75LZ7OzSMF5cgeu4EZa1MByHidHYTil5",
+	"skTXFueNY3TJDHQl6Sl046yytDvvcwLfgUcu+yS7EqXwecVYpkcjNOV0euoJzg50rd4jIwL4LlYR7Dxa",
+	"ZeLAV8tL0VNqMjpHjxs3fbQmjnOpYt+MaxfdQzmNCyX7nnJxm1xRvQGZLXQUVWkl7SX0YMLPpGGgs7BC",
+	"+aaj5qiSjE8o/uAAA2txCRBxGNks536DAbQd3J6oznTPOzyH8LuUXrgAO9rhIXqu4yNnk8VBLO7L+G3a",
+	"RliQxmCLUCC8ijvh3a+qxIVVRkHoOhyXvkPADB/HMR5aCbNQh3KKFT3Gxd3YtyjON36rmdF3u3FqdMh5",
+	"8DPqQWmKnojmsLo43flfRuLXv0STCN0USHH1YCZQuYbTRk9ux93ffb3zPf3Rv7s86P5qdFfiNg6USB4Z",
+	"q8k24nqRJhWIW4jsql2fzsyOPvPsSDGZV9Hi1FTN47GnKPi4amGB+YWOwjydaEKnhS/vGWi6FXXdm1hx",
+	"hHiXuYeeP2gHclFnn0MVS1noEEoklf10fysiIg+73c92Hz7ce7D/2X734cPdn52gUCTkYnRf+OYjs/3L",
+	"MK/QaiQO7xUvegMuzndHeiZrRxJVdtn5XGC6dD5CwP+0IuzvKu2zY30o4BMTRGjlferHAlkW8pqZSfVw",
+	"L9CeGkb6LP7BAeNsr7tLaG+mprKKuD3EtZh4jDZiL0n7dckLmbPzifXwHNSzjCuH8OZclHRJoBfASgtK",
+	"+5pg8tuw0oitXiRoaxoAQ4cfmTZFIgFAJWnpE28FcFqAGH+4ngfoAJDyeyrnllcJse2w1FcKAl6nAPNC",
+	"/ZdqPLGstX993aZW4uQPPhXyuZhqh7VJlIL8kA6iSSdsO3Qcw/VC6UYQkopfpypf9aF3bIIpca+TkFa7",
+	"4OeiwGz8vDTI5PdUay5JsGEXmklldQz6QpvFXmmqCmQlGA8zQ1gy3lM1vJdDf1/LvOZ1FTlb4yz86le/",
+	"Yie5GI21FSqb9tSZgPsherT9ezFF8OkRuIKVwpZSwGoMRIf9XkypdjxyPrq6pwjwD0UDQ5KGGGH3IYEJ",
+	"IQj6vMZ7+wyDgmsRBvfQhwz0tWgAQsHNQ5geUHn2V2fPv4IJT6LJB1ox5mWVFEBlOkBosZbR4LNmBTNj",
+	"ntF9PRKw7Z0w5WZ0xK0VZfuQGuqp47Ovaw0hS82q2zigtUIOh3OdT9n51ApQYG2zMz4S7LWYJpRzMxpU",
+	"4tIfuCHDuRyj6ZX23iefeDj9nmLhQH3yCcwF+fJV49rr7laUAtvBXuBN752vUpBjGX1WW95TMS74FJst",
+	"JyIFnzIHv4gzWoWA1IfjHSZtPKYDwCupfQgTXogo20MUQ0IEQCo2KCBPA43bNY2h69Bhgovxh8pWewRR",
+	"cVGPSLOvMNk2JsO36OiC2eL3uw8xMzaN+1TYcrp9NLCiTNtMgg6kSho9kEqaIfQHasZRHFWNwV52xAlI",
+	"CjTwAChLKA6elMgdvhbTcLRg67RSK67tTmYu03ZPwS0bBfUYJq7HurTwZYd9g708Jn5nG0xJBywUrrIG",
+	"9RR511HCHuOwirw2ZG57pkTHgCuuGoZkPqmHMehjGJG/QInSpD7fRspaGi9BXrQPXZq7dJYRSx2UUNQs",
+	"ks1z4XxyID19tx2Yb9yg0rBXL59sf85aQB+R9OHR2abjiEknpGHyQsEGbFPQ+/7u592earmhA/bWOYxZ",
+	"e59Zlva20kP29Aks0fHp0yeskEpg0vF2hz2VCqGrtHEbsqeyIS95ZkUJbaW/Sn1CPVoetCqXgpnXcjwW",
+	"+SE7L7h6jXWa+IUzFdEm16gZwnadQokWrMOOdTEZKRN86/H6hi2BQz6A6XnLMvyIvWV+RdjbKOm8vmJv",
+	"PXXHHz31dnt7u/Z/qCV9LVWesrdsKgx7y1JfQ4o/sHzK6MsQoew/dg+YDC5ZCx5icbyQqsL4s16UlGz0",
+	"dR2XLJTySGS11wn76T/+r6w7U4OnhlVhrWqRcu4eXfKip8IkoIQE7VetVJfnzEg95tpcAf+CDXiGOWoo",
+	"Yo11WYs+IVZstw0VAWkhDpd6MxYlrGSHnXpOwFshnW0EE+nXKDzmvQ/LhufVrULMcZKHNh5ETyEFt/VK",
+	"6svR9i6C8H62hWi+WvS3oUulamamhWjG2h12qq/cTSsplxnc14H7gZrwLZJeymKF5yBuV5rqUPh8NHgK",
+	"kEWgD7H8V46fnRjB0k4KLeUikyNesLHG65cr5ukaEmGFVCrd7TwQ2/fTNoHsMaBrE4OyhxFA3awuzSFL",
+	"v+JfAUE9UYO0QmuXr0VsPqZ82qWgatyMYIIgxBiUCpkYd9NkoijomglXChDZKbOaVPX66p5hcKYDZcWd",
+	"RcWVz40H65dP3JTmfgqJ1HA2kgQCF+aQ3ifA5jCcR8eHV9c7CQbA+ziS60BaPE1zrrJA7KAOZ2bHj/a7",
+	"Dz8lXojWDSfFITzjIoiSpTtQcjbQk35R5+hRStuj+fu0HfYMzrFPzGSIS6R5bAFKIaZyDWw2HLxAWIls",
+	"gcKYhYh7KPKg26V3JmGhCi/B+QRJcNHjnUYBFZwiUKGqvW4XwlAZSix4kEMc6jY7I5kDBRan0BZOegw1",
+	"grOSSzmv1TZRE/J1PyRum7GCT5ETOteEpoMiE3n3Ek+F4vY9g5XmApjiMopKgSrOSwxaRrsQKqpcRhfG",
+	"w5R3Op3UrxsZCa5xFg56Kk3TnvqV42Wo4YjqjofaauQKtndZy12t81dou6dgeydeaiKBsn4feNKfBJqQ",
+	"eArTU34pEyXhe5E83U26nQdJt9Pd7e4lydIvug8/b/5iL9ntdOGLve6D5i/uJ3v0xf7uLn5Bu8e/T7Dw",
+	"g27yzXa3u7+34IPd+/fpg/vJnpvQBe5pp5PNIfkijv/3YtpgOYCdgTstsIF4ZThoRicJYzTgAstC8Ia9",
+	"DWfv5b2JtlZ1Qy/qV/XxnfctIGChWoVXMGEVXNOiXkac+OYwTUu6GDh36J2Gy2cGVWBRhzz3v/akPfcF",
+	"3t1Z4qRJ5DaZbHnBqF7B/ETgzQ8Pz0VOJBLGPJLqqVAXdhirouPkbx/OKfN0sgpC0qU+9caHS083ycO1",
+	"Bfymo9Wlk+Z7ak6Hk5B52hVyV0PI2ecWzNkso+itJl3B/ESnqDwglgwt+dLEeVn93KHRQbEqThIbnVFe",
+	"gAC9TsDXudaF4Ao3w3oxZg4O1wWZlRNFGE8f48s+usfesUED4ngZDwd5IG10mGOLxkStGT/SYLzAzfxB",
+	"AstgHN5VhXsN4QEOyUsFLvdNUFs4WRf1ssGWTM9qHi2lyIREdMs6xVtkHb0BM3Q6UXeepXmilhDzjybG",
+	"XwC8gTcY0Oa90Rnc3L7oE4ferQ8glYkMIwFo3iT10+Y8u0D15ADoS7D36dF4ghY+lYnE3+oiqMVMMNvN",
+	"Y4JRXKkEbC2HfJ6nh85PzRsZyWpHfhfoK9Hgn0Wd97ZHSraFIqrrhI/OxZHG3agsowFmFlTzDkcWUfhF",
+	"gXFBlb9WUNifxh4dPfVIlECLZpMyeMr0h+MkNm1MihrasOmpXGQSSFzCZlAVMTu9cx/p06P0oKd2O1Er",
+	"V7UuLoQNPmCpH1R62FN7cRWZnhQ5q1ltZz6/P9tiQMGXPvHWTIn9uIQzibjUhjlmXIgxiKFGp8pCzOKZ",
+	"uh504hDeZs++kE+jhrXsNB9uN1DKiciYQf2KW0tmEyhg8VqTXqnZlBChFGTlEQXl6UBFKWrN5tIueDZz",
+	"0c6WbkrgO6yACg9FKeAKXZBegQ2lwdmdybKANWDd4GNZ2yGZLkuRWdSMeqUFNl0XAe+hoY3lpRzYtvMb",
+	"9XZ4WEk/5dI6k109k4WbNKzDJwPnlooe9tSn8XapQVIfsBQ2BU4KL2A7fBZ/GyFds1YQb+CkJGS6C2DX",
+	"1Nn2AXbBnSqg+DW36OD3jEebycgRFjD6PP6qI7dpoAjP0ZZDcrjpKTLRHSFEygGLGYTBUJa/8bawKqMH",
+	"GudQfffky5NTdroP5LUoBLnPpl9MVA6GGOjD83MjyktSxBvWuuSFw0nBwb46fvWMZToXpIOyk8gDuuaI",
+	"dsCqKWA//X//nnIpJyyabHjcU+NSgKZUccBcC4QRSmRcgT7amdQIvg+7c8jSXMDFmtIJrHYRvkFq+aTU",
+	"o7RayHaH1SetZtGc9pSfIW/dQy2lW3Bn6Cz1lecoKz057ykzhmvRDIWw7AppHfym6YYlmxQcDSIl+iRj",
+	"nb9N2G8Stp2wf5swy897Cs2EAXqdu0uqzcalGMhrNwUY2jbWxpZ6PBQuJQzcPPEdxeH60zRRZLiuQevg",
+	"lNB6M8iI4pTT/pKCUUNEK5N2bsqut+OdNiw+277c+40oP6Mp9Husp758+hm73Os86Oyy9Pnpq+9Ou7sp",
+	"Gwlj0EdfKvb49DOGXhF4KSEoZACYZa1nZ18mPfX8i1N69fyLv8bXNNQDGlhCG3GiwMxObxhtx4TpagP3",
+	"lJUjTFhLeBrASY3RtZ/q9pRCkLE0cXe7uIBvmFB042Eucl6WEpx9ye0BHRSePX36gg1Kgo7EtJRfvnz5",
+	"ApArVXDGscNSCDoq5PU+UZkoLZfKTtn5JL8Qlk2FczuIE8ijgvuSFw52HhfHGWoWSCCnwSn2Awgigc4s",
+	"U3wdeWrjNxxMynQsWEV7OpUmUZ/DnY8M8nuq52geFqvn5lSXW4u29vJyS/w3P6aJ+yVkZKyntSJf44m6",
+	"U99Nl+wbW74FR06qJ2I/A8Xy6n2X0bbFZ1LFea7RVMYi8D3BmJoZBGCLItasGIWGV7pUAJEtBv2VlYWh",
+	"VQl3YPgdOL+nCLousIJVHIuzWDq9bGAuojgxG3uS1wPE4L5f4GzKlvuaItZyjUOXZk6uvOLVdB86vyES",
+	"sOAu8fE4wX/Ma4owKR1KWsI4X4RFif2cQb2nolYxOq3i/2aFdHBc8HvBLbiX5SjESVojigFKCICWhzoF",
+	"P9JI7JuolW6n7hKMEJHR5O68UaGtIdQdEs45Vw23NQ6DAwSTec3HtAaxi5h7oAQHxgtEIpfZJqAk2xDB",
+	"NuQmrtSJLX5oJBX0VDW6xfZKN4HvdUHeQRpl6tXPhMVRuy8b77MgjgaIgrLS0ni3zI/QyB/NF3evLM3z",
+	"sButjgwZbzxmsh2K0Sa3+xJThmto5/vg4/HurjWlg8rrjehnwnhWamNgoHQAPXIrXaOoR+2pOUXqIVtx",
+	"m4Sm3M3qBJR1IsZctsrKG26BQEJkbaFMMk9nIH1MbehzN517uyBMLPTodqD/7tIuU5+bj3LEL53wzJ1S",
+	"PrNb70yiqHDG6ADDUchLfsWL9USL5dTniynyd9AIhp8wzt7wbafvjN050Fjg2fIAbuby874EHjR0FGGI",
+	"TIJ+8+7sQocdTGbV/0qv4fLr2pLLxrwY37gyZ76JtUBX3oMOvHp18shTgNvn974JU/AzQT1X87iA8oQ1",
+	"q2DuPjJ4Hxm8u6ez/mgwXu289SFuVpFSJ4Bvj7gVpeTFXVq+M13mhBHjzIeuTQy5yXS+MJ3FmSvxLHTy",
+	"LinBTGNLU1z4Dn0EubiTJBdzW2Wj7BZ3lNAiE6XTEZbCZ6bw/YOtbyygURntwo6clQN1jq5ohqbAFI02",
+	"qQuNE9djrnKR9yNbSEo+WWkGnAck6aUQptQFdqRWF6KkbBCtH/+B8aRSc5Uis1xdTApeJj01Yb9lfOen",
+	"v/sv99tgIJvpoS5rRhaKthiXYsxL52AB4dQUORcGSkAc0qK7hP+4P0ADo4/FdqN2r11UmbFiDObwQkJo",
+	"oPO5A8PnJcSUkC1s9DTIN7LsqTBO0z6M86wlaOvCKrxlD6GugvF1zAkNxBlsf+sesB9/YP/y/2euCzvY",
+	"fDu4jpSi4FZeirD7eipaE9CcnmN8RNXAPRcChjpCGgYk/t9pwYz/+MPX7Z5q/dXx755BgAr78b896Ox2",
+	"Pj1kjyclB5qzc3zy8uiY/eHV0TN2NB532OPOLoRkuUwkAQC6pxys0QHjSC6ZxCAq8gWCKM6HS5BzZ8na",
+	"HWHozjbzM2nw5ka7UJ50l5Lf1zdLkBEusrT5Ut35HtbrozfzR27xrm9NohqRW1HYnDdPj7FwP986r9io",
+	"M5snXKsFXejeX4DKa00qVRGnj2qvXwL+0fucrc1UXQR8vTGi74kxE2EYZyVXOfBCUA1rBWiX3b3P2bm0",
+	"pl2pkcGNVxFajPHqK5GVwgadFNp1fbCQKqaHIYJVlB7GB54jE+UgYXoKUf3RhQs9iwt9YZi0i/mUl9DV",
+	"O2JOsO6fiSPBtlcEk+EyRWh2bgHA9Uwhk/dLJwAfb/i7J0B4thmnzRIRHkcq1rzT6esQlkS5ZdamL6fi",
+	"Ur92IhDWdOhi0yskge5uu5LDXE5GlzcY3a97KoJF8G4NJdabU53OxNaI3o/d9aTig+m9a6Rhf362aFo+",
+	"ZoH6RfDBsBTvf0xKoXJzRzCn9IXLXjebTj6oOGJI7yhYBTUaPQXO6WH/RwnnU1PoMaBvYFj+OTcixjwa",
+	"CU6mK2esO3uENVUBM6kvkVae/lV3yWilcn1VNbjXBWRwuCpLXXiYDyMx8/yP/7DHzh6x1hUvAQucVC0/",
+	"/sN9fEi+am20bWsFPlRnQ3E15KWFyIDSstbJ2XP22eefdbf33HC+EcZeYOgiumztbu+ZqvKE7W7fB/Sb",
+	"ve09k7DT7X2TsP3tXfIV2O1esxYF0rRRtSJgIjlFVFUTa+pBTobc2jFKW2kbInEOw19x8DeovpyVr6fS",
+	"0MABG/DCiBQ0cJdSF6Rt83o0g4OZzUcLbn2XukBXOvQ7H4grj+ECgIOzi2OHonT+YGHRAQSE1gNd+xRk",
+	"b3I5+rFJaapJmMnQH42qp2BjHzIIJ1cZQXF7tHUV7wiMVEDo9ZbiJQIAWT8XqB6ERcRjxdyFnkT8IUbJ",
+	"ZyJxwUfnGpELpuRI2VN/OGZ4keeTUhiKauVZVopcWodKVQpQelq4VFTOzp6/cBhsiIjfLGFibxbcI8sg",
+	"K24nl2JTM+7w32kbYbRr40jgPL0IxRrQLR4jegDQj9ihNGFSobfr5UKIEtgYt4Cu8ZTbhtbF9YrWrb6F",
+	"tr/UV2zE1XT2TCYVG4ThLnUCmhB4p42I9KJe+vfNGPF7MUT8Xg0hfu8DAzrTeVrkOSlKCZMCR9ePKAmw",
+	"UCqvSONHo9odZB4q5cB6jsOhGvsDTdE6FBuEbMbMZQ6LU795I7aK9vptaT3wetgZF9p2zOXFHbFf2Eot",
+	"wpDaTWdAT6prIWHkAeJcvd30IJdyEPMODqiU/A/pKsuEssgaKHe3EU/UUxErRPMcgqN9bch60KkQ6N9Z",
+	"CO9IhOZBRC4u4O4+bWBGlLbU62WX34tC27Ovf/fxDvx4B368A6M7UI74hdgxlxe/uR4VNwh7Q9Lw8Rq7",
+	"/QQoMemlEDak3QkjKnbLtxK0LbJJCVpDoIrngpeiPJrY4dbBH799921ocPY8nFQyPXqr60HN06IKf2pV",
+	"wrhpd6r9DqUaIAGfEMp/XJc/aBSNEuE8wC1qoirdnMxXeqIuRWkEG5cil5lP/uW1dDWwx7i+6vOmSv9w",
+	"5CAFsC+xU2s9+bu4aipchePVc9wkIehmNsuLHQoPKDAQIq+14jzL55r5ujEkLali9CoceYd/oNhAl5mI",
+	"an+TNVR8hFeYzHjhgq1N5NYCgqsYW45RYLqQmRTxtLoCTbW+OHEJUTsx+YYHTXmn0D8wTJiuRy2JQmS2",
+	"1EpmUfbmeHGxdEO1T8FcJEzInYF/joQtZebrj5LGdWbRC2m3fPvu/xkA",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
