@@ -1,6 +1,8 @@
 package openapi
 
 import (
+	"encoding/json"
+	"strings"
 	"testing"
 
 	"github.com/getkin/kin-openapi/openapi3"
@@ -75,5 +77,90 @@ func TestNullableReferences(t *testing.T) {
 		if err := p.VisitJSON(tc.invalid); err == nil {
 			t.Errorf("%s.%s accepts %v", tc.schema, tc.property, tc.invalid)
 		}
+	}
+}
+
+// TestRateLimitHeadersDeclared: every shared response (all the error
+// answers, 429 included) declares the four RateLimit header fields, and
+// the description states the draft they follow.
+func TestRateLimitHeadersDeclared(t *testing.T) {
+	doc := load(t)
+	names := []string{"RateLimit-Limit", "RateLimit-Remaining", "RateLimit-Reset", "RateLimit-Policy"}
+	for name, r := range doc.Components.Responses {
+		for _, h := range names {
+			if r.Value.Headers[h] == nil {
+				t.Errorf("components/responses/%s does not declare %s", name, h)
+			}
+		}
+	}
+	if !strings.Contains(doc.Info.Description, "draft-ietf-httpapi-ratelimit-headers-06") {
+		t.Error("info.description does not name the RateLimit draft")
+	}
+}
+
+// TestServers: the document names its server, relative to where it is
+// served, so a generated client has a base address.
+func TestServers(t *testing.T) {
+	doc := load(t)
+	if len(doc.Servers) == 0 || doc.Servers[0].URL != "/" {
+		t.Errorf("servers = %v, want one relative to the document (/)", doc.Servers)
+	}
+}
+
+// TestIntegerIDsBounded: every integer that numbers a record (`id`, `seq`,
+// `*_id`) is an int64 bounded by 2^53 − 1, the largest integer a JavaScript
+// number holds exactly; the database's sequences stop there.
+func TestIntegerIDsBounded(t *testing.T) {
+	n := 0
+	allSchemas(load(t), func(at string, s *openapi3.Schema) {
+		for name, p := range s.Properties {
+			if !p.Value.Type.Is("integer") || (name != "id" && name != "seq" && !strings.HasSuffix(name, "_id")) {
+				continue
+			}
+			n++
+			if p.Value.Format != "int64" || p.Value.Max == nil || *p.Value.Max != 9007199254740991 {
+				t.Errorf("%s/%s: integer id without format int64 and maximum 9007199254740991", at, name)
+			}
+		}
+	})
+	if n == 0 {
+		t.Error("found no integer id; the walk is wrong")
+	}
+}
+
+// TestRequestBodyExamples: every request body, in every media type, has an
+// example, and the example is valid against its schema under kin-openapi
+// (a JSON example as JSON decodes it; a CSV one as the non-empty string it is).
+func TestRequestBodyExamples(t *testing.T) {
+	doc := load(t)
+	n := 0
+	for _, o := range operations(doc) {
+		if o.op.RequestBody == nil {
+			continue
+		}
+		for ct, mt := range o.op.RequestBody.Value.Content {
+			n++
+			if mt.Example == nil {
+				t.Errorf("%s %s: no example", o, ct)
+				continue
+			}
+			v := mt.Example
+			if strings.HasSuffix(ct, "json") {
+				b, err := json.Marshal(v)
+				if err != nil {
+					t.Fatalf("%s %s: %v", o, ct, err)
+				}
+				v = nil
+				if err := json.Unmarshal(b, &v); err != nil {
+					t.Fatalf("%s %s: %v", o, ct, err)
+				}
+			}
+			if err := mt.Schema.Value.VisitJSON(v, openapi3.MultiErrors()); err != nil {
+				t.Errorf("%s %s: the example does not match the schema: %v", o, ct, err)
+			}
+		}
+	}
+	if n == 0 {
+		t.Error("found no request body; the walk is wrong")
 	}
 }

@@ -84,6 +84,7 @@ func TestRoutes(t *testing.T) {
 		"POST /v1/instruments/{instrument}/predictions",
 		"POST /v1/methods",
 		"POST /v1/runs",
+		"POST /v1/runs/csv",
 		"POST /v1/runs/{id}/samples",
 		"POST /v1/standard-materials",
 		"POST /v1/tokens",

@@ -111,22 +111,22 @@ func (e ControlRule) Valid() bool {
 
 // Defines values for CurveNonlinearOutcome.
 const (
-	Converged      CurveNonlinearOutcome = "converged"
-	IterationLimit CurveNonlinearOutcome = "iteration_limit"
-	Singular       CurveNonlinearOutcome = "singular"
-	Stalled        CurveNonlinearOutcome = "stalled"
+	NonlinearConverged      CurveNonlinearOutcome = "converged"
+	NonlinearIterationLimit CurveNonlinearOutcome = "iteration_limit"
+	NonlinearSingular       CurveNonlinearOutcome = "singular"
+	NonlinearStalled        CurveNonlinearOutcome = "stalled"
 )
 
 // Valid indicates whether the value is a known member of the CurveNonlinearOutcome enum.
 func (e CurveNonlinearOutcome) Valid() bool {
 	switch e {
-	case Converged:
+	case NonlinearConverged:
 		return true
-	case IterationLimit:
+	case NonlinearIterationLimit:
 		return true
-	case Singular:
+	case NonlinearSingular:
 		return true
-	case Stalled:
+	case NonlinearStalled:
 		return true
 	default:
 		return false
@@ -192,16 +192,16 @@ func (e HealthStatus) Valid() bool {
 
 // Defines values for InjectionInputJudged.
 const (
-	Fail InjectionInputJudged = "fail"
-	Pass InjectionInputJudged = "pass"
+	InjectionJudgedFail InjectionInputJudged = "fail"
+	InjectionJudgedPass InjectionInputJudged = "pass"
 )
 
 // Valid indicates whether the value is a known member of the InjectionInputJudged enum.
 func (e InjectionInputJudged) Valid() bool {
 	switch e {
-	case Fail:
+	case InjectionJudgedFail:
 		return true
-	case Pass:
+	case InjectionJudgedPass:
 		return true
 	default:
 		return false
@@ -210,34 +210,34 @@ func (e InjectionInputJudged) Valid() bool {
 
 // Defines values for InjectionInputKind.
 const (
-	CalibrationBlank    InjectionInputKind = "calibration_blank"
-	CalibrationStandard InjectionInputKind = "calibration_standard"
-	Ccb                 InjectionInputKind = "ccb"
-	Ccv                 InjectionInputKind = "ccv"
-	Icv                 InjectionInputKind = "icv"
-	MethodBlank         InjectionInputKind = "method_blank"
-	QcSample            InjectionInputKind = "qc_sample"
-	Sample              InjectionInputKind = "sample"
+	InjectionCCB                 InjectionInputKind = "ccb"
+	InjectionCCV                 InjectionInputKind = "ccv"
+	InjectionCalibrationBlank    InjectionInputKind = "calibration_blank"
+	InjectionCalibrationStandard InjectionInputKind = "calibration_standard"
+	InjectionICV                 InjectionInputKind = "icv"
+	InjectionMethodBlank         InjectionInputKind = "method_blank"
+	InjectionQCSample            InjectionInputKind = "qc_sample"
+	InjectionSample              InjectionInputKind = "sample"
 )
 
 // Valid indicates whether the value is a known member of the InjectionInputKind enum.
 func (e InjectionInputKind) Valid() bool {
 	switch e {
-	case CalibrationBlank:
+	case InjectionCCB:
 		return true
-	case CalibrationStandard:
+	case InjectionCCV:
 		return true
-	case Ccb:
+	case InjectionCalibrationBlank:
 		return true
-	case Ccv:
+	case InjectionCalibrationStandard:
 		return true
-	case Icv:
+	case InjectionICV:
 		return true
-	case MethodBlank:
+	case InjectionMethodBlank:
 		return true
-	case QcSample:
+	case InjectionQCSample:
 		return true
-	case Sample:
+	case InjectionSample:
 		return true
 	default:
 		return false
@@ -315,22 +315,67 @@ func (e Model) Valid() bool {
 
 // Defines values for PersonRequestRoles.
 const (
-	Administrator PersonRequestRoles = "administrator"
-	Analyst       PersonRequestRoles = "analyst"
-	QaApprover    PersonRequestRoles = "qa-approver"
-	Reviewer      PersonRequestRoles = "reviewer"
+	RoleAdministrator PersonRequestRoles = "administrator"
+	RoleAnalyst       PersonRequestRoles = "analyst"
+	RoleQAApprover    PersonRequestRoles = "qa-approver"
+	RoleReviewer      PersonRequestRoles = "reviewer"
 )
 
 // Valid indicates whether the value is a known member of the PersonRequestRoles enum.
 func (e PersonRequestRoles) Valid() bool {
 	switch e {
-	case Administrator:
+	case RoleAdministrator:
 		return true
-	case Analyst:
+	case RoleAnalyst:
 		return true
-	case QaApprover:
+	case RoleQAApprover:
 		return true
-	case Reviewer:
+	case RoleReviewer:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for PredictionFlag.
+const (
+	PredictionAboveAsymptote    PredictionFlag = "above_asymptote"
+	PredictionAboveRange        PredictionFlag = "above_range"
+	PredictionAmbiguousRoot     PredictionFlag = "ambiguous_root"
+	PredictionBelowAsymptote    PredictionFlag = "below_asymptote"
+	PredictionBelowLOD          PredictionFlag = "below_lod"
+	PredictionBelowLOQ          PredictionFlag = "below_loq"
+	PredictionBelowRange        PredictionFlag = "below_range"
+	PredictionExtrapolated      PredictionFlag = "extrapolated"
+	PredictionNegative          PredictionFlag = "negative"
+	PredictionNoRootInRange     PredictionFlag = "no_root_in_range"
+	PredictionUnboundedInterval PredictionFlag = "unbounded_interval"
+)
+
+// Valid indicates whether the value is a known member of the PredictionFlag enum.
+func (e PredictionFlag) Valid() bool {
+	switch e {
+	case PredictionAboveAsymptote:
+		return true
+	case PredictionAboveRange:
+		return true
+	case PredictionAmbiguousRoot:
+		return true
+	case PredictionBelowAsymptote:
+		return true
+	case PredictionBelowLOD:
+		return true
+	case PredictionBelowLOQ:
+		return true
+	case PredictionBelowRange:
+		return true
+	case PredictionExtrapolated:
+		return true
+	case PredictionNegative:
+		return true
+	case PredictionNoRootInRange:
+		return true
+	case PredictionUnboundedInterval:
 		return true
 	default:
 		return false
@@ -393,16 +438,16 @@ func (e ReleaseState) Valid() bool {
 
 // Defines values for ReportedValueFactorsOp.
 const (
-	Empty ReportedValueFactorsOp = "×"
-	N1    ReportedValueFactorsOp = "÷"
+	FactorDivide   ReportedValueFactorsOp = "÷"
+	FactorMultiply ReportedValueFactorsOp = "×"
 )
 
 // Valid indicates whether the value is a known member of the ReportedValueFactorsOp enum.
 func (e ReportedValueFactorsOp) Valid() bool {
 	switch e {
-	case Empty:
+	case FactorDivide:
 		return true
-	case N1:
+	case FactorMultiply:
 		return true
 	default:
 		return false
@@ -421,6 +466,90 @@ func (e ResultEventKind) Valid() bool {
 	case ResultEventCreated:
 		return true
 	case ResultEventStateChanged:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for ResultEventCause.
+const (
+	CauseExclusion    ResultEventCause = "curve.exclusion"
+	CauseReview       ResultEventCause = "curve.review"
+	CauseRunCreate    ResultEventCause = "run.create"
+	CauseSamplesAdd   ResultEventCause = "samples.add"
+	CauseVerification ResultEventCause = "curve.verification"
+)
+
+// Valid indicates whether the value is a known member of the ResultEventCause enum.
+func (e ResultEventCause) Valid() bool {
+	switch e {
+	case CauseExclusion:
+		return true
+	case CauseReview:
+		return true
+	case CauseRunCreate:
+		return true
+	case CauseSamplesAdd:
+		return true
+	case CauseVerification:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for ResultFlag.
+const (
+	ResultAboveAsymptote    ResultFlag = "above_asymptote"
+	ResultAboveRange        ResultFlag = "above_range"
+	ResultAmbiguousRoot     ResultFlag = "ambiguous_root"
+	ResultBelowAsymptote    ResultFlag = "below_asymptote"
+	ResultBelowLOD          ResultFlag = "below_lod"
+	ResultBelowLOQ          ResultFlag = "below_loq"
+	ResultBelowRange        ResultFlag = "below_range"
+	ResultExtrapolated      ResultFlag = "extrapolated"
+	ResultISOutsideWindow   ResultFlag = "is_outside_window"
+	ResultNegative          ResultFlag = "negative"
+	ResultNoCurve           ResultFlag = "no_curve"
+	ResultNoRootInRange     ResultFlag = "no_root_in_range"
+	ResultNotQuantifiable   ResultFlag = "not_quantifiable"
+	ResultSequenceWithheld  ResultFlag = "sequence_withheld"
+	ResultUnboundedInterval ResultFlag = "unbounded_interval"
+)
+
+// Valid indicates whether the value is a known member of the ResultFlag enum.
+func (e ResultFlag) Valid() bool {
+	switch e {
+	case ResultAboveAsymptote:
+		return true
+	case ResultAboveRange:
+		return true
+	case ResultAmbiguousRoot:
+		return true
+	case ResultBelowAsymptote:
+		return true
+	case ResultBelowLOD:
+		return true
+	case ResultBelowLOQ:
+		return true
+	case ResultBelowRange:
+		return true
+	case ResultExtrapolated:
+		return true
+	case ResultISOutsideWindow:
+		return true
+	case ResultNegative:
+		return true
+	case ResultNoCurve:
+		return true
+	case ResultNoRootInRange:
+		return true
+	case ResultNotQuantifiable:
+		return true
+	case ResultSequenceWithheld:
+		return true
+	case ResultUnboundedInterval:
 		return true
 	default:
 		return false
@@ -489,19 +618,19 @@ func (e Scope) Valid() bool {
 
 // Defines values for SequenceRecordState.
 const (
-	Provisional SequenceRecordState = "provisional"
-	Reportable  SequenceRecordState = "reportable"
-	Withheld    SequenceRecordState = "withheld"
+	SequenceProvisional SequenceRecordState = "provisional"
+	SequenceReportable  SequenceRecordState = "reportable"
+	SequenceWithheld    SequenceRecordState = "withheld"
 )
 
 // Valid indicates whether the value is a known member of the SequenceRecordState enum.
 func (e SequenceRecordState) Valid() bool {
 	switch e {
-	case Provisional:
+	case SequenceProvisional:
 		return true
-	case Reportable:
+	case SequenceReportable:
 		return true
-	case Withheld:
+	case SequenceWithheld:
 		return true
 	default:
 		return false
@@ -555,16 +684,16 @@ func (e SignatureMeaning) Valid() bool {
 
 // Defines values for SignatureRequestDecision.
 const (
-	Approve SignatureRequestDecision = "approve"
-	Reject  SignatureRequestDecision = "reject"
+	SignatureDecisionApprove SignatureRequestDecision = "approve"
+	SignatureDecisionReject  SignatureRequestDecision = "reject"
 )
 
 // Valid indicates whether the value is a known member of the SignatureRequestDecision enum.
 func (e SignatureRequestDecision) Valid() bool {
 	switch e {
-	case Approve:
+	case SignatureDecisionApprove:
 		return true
-	case Reject:
+	case SignatureDecisionReject:
 		return true
 	default:
 		return false
@@ -1580,6 +1709,19 @@ type PersonRequest struct {
 // PersonRequestRoles defines model for PersonRequest.Roles.
 type PersonRequestRoles string
 
+// PredictionFlag A fact about an inverse prediction. `below_range`, `above_range`: the
+// response lies below the lowest or above the highest accepted
+// standard (`extrapolated` is set with either); `below_lod`,
+// `below_loq`: below the detection or quantification limit; `negative`:
+// a negative point estimate; `no_root_in_range`: no concentration on the
+// calibrated branch gives the response; `ambiguous_root`: two
+// concentrations in the working range give it (none is reported);
+// `unbounded_interval`: no finite confidence interval;
+// `above_asymptote`, `below_asymptote` (non-linear models): the response
+// is at or beyond the highest or lowest response the curve approaches,
+// so no concentration gives it.
+type PredictionFlag string
+
 // PredictionRequest defines model for PredictionRequest.
 type PredictionRequest struct {
 	// Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
@@ -1616,14 +1758,9 @@ type PredictionResult struct {
 	Concentration *float64 `json:"concentration"`
 	Dilution      float64  `json:"dilution"`
 
-	// Flags `below_range`, `above_range`, `extrapolated`, `below_lod`,
-	// `below_loq`, `negative`, `no_root_in_range`, `ambiguous_root`
-	// (two concentrations in the working range give the response: none
-	// is reported), `unbounded_interval`.
-	// Stored sample results may also carry `no_curve` and
-	// `not_quantifiable` (see `SampleResult`).
-	Flags []string `json:"flags"`
-	ID    string   `json:"id"`
+	// Flags Facts about the prediction (schema `PredictionFlag`).
+	Flags []PredictionFlag `json:"flags"`
+	ID    string           `json:"id"`
 
 	// Interval Confidence interval of the concentration. When `bounded` is false, `low` and `high` are null.
 	Interval Interval `json:"interval"`
@@ -1816,11 +1953,13 @@ type ResultEvent struct {
 	Analyte string    `json:"analyte"`
 	At      Timestamp `json:"at"`
 
-	// Cause `run.create`, `samples.add`, `curve.review`, `curve.verification` or `curve.exclusion`.
-	Cause         string          `json:"cause"`
-	Concentration *float64        `json:"concentration"`
-	CurveID       UUID            `json:"curve_id"`
-	Kind          ResultEventKind `json:"kind"`
+	// Cause The write that caused a result event: `run.create` (a run with
+	// samples), `samples.add` (samples added to a run), `curve.review`,
+	// `curve.verification` or `curve.exclusion`.
+	Cause         ResultEventCause `json:"cause"`
+	Concentration *float64         `json:"concentration"`
+	CurveID       UUID             `json:"curve_id"`
+	Kind          ResultEventKind  `json:"kind"`
 
 	// PreviousState The state before; null for `created`.
 	PreviousState *ReleaseState `json:"previous_state"`
@@ -1843,6 +1982,11 @@ type ResultEvent struct {
 // ResultEventKind defines model for ResultEvent.Kind.
 type ResultEventKind string
 
+// ResultEventCause The write that caused a result event: `run.create` (a run with
+// samples), `samples.add` (samples added to a run), `curve.review`,
+// `curve.verification` or `curve.exclusion`.
+type ResultEventCause string
+
 // ResultFeed defines model for ResultFeed.
 type ResultFeed struct {
 	// Cautions What the result is and is not: acceptance against configured default
@@ -1858,6 +2002,14 @@ type ResultFeed struct {
 	// NextCursor Pass as `cursor` for the next page; never null on the feed.
 	NextCursor string `json:"next_cursor"`
 }
+
+// ResultFlag A flag of a stored sample result: every `PredictionFlag`, and
+// `no_curve` (the curve could not be fitted), `not_quantifiable` (the
+// engine refused the readings; `interval_method` says why),
+// `is_outside_window` (the internal standard's recovery lies outside
+// the method's window; the result is withheld) or `sequence_withheld`
+// (the run's injection sequence withholds the result; see `sequence`).
+type ResultFlag string
 
 // ResultQualifier defines model for ResultQualifier.
 type ResultQualifier struct {
@@ -2084,10 +2236,8 @@ type SampleResult struct {
 	// Dilution The dilution factor applied after inversion (reported = curve value × dilution).
 	Dilution float64 `json:"dilution"`
 
-	// Flags The prediction flags of `POST /v1/curves/{id}/predictions`, and
-	// `no_curve` (the curve could not be fitted) or `not_quantifiable`
-	// (the engine refused the readings; `interval_method` says why).
-	Flags []string `json:"flags"`
+	// Flags The prediction flags, and `no_curve` or `not_quantifiable` (schema `ResultFlag`).
+	Flags []ResultFlag `json:"flags"`
 
 	// ID The result's id, as the change feed names it.
 	ID int64 `json:"id"`
@@ -2744,6 +2894,25 @@ type CreateRunParams struct {
 	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
 }
 
+// CreateRunCsvParams defines parameters for CreateRunCsv.
+type CreateRunCsvParams struct {
+	// Method The method name.
+	Method Identifier `form:"method" json:"method"`
+
+	// Instrument The instrument identifier.
+	Instrument Identifier `form:"instrument" json:"instrument"`
+
+	// AcquiredAt When the run was acquired, RFC 3339.
+	AcquiredAt Timestamp `form:"acquired_at" json:"acquired_at"`
+
+	// Operator Who ran the instrument.
+	Operator *Operator `form:"operator,omitempty" json:"operator,omitempty"`
+
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// request safe; see the operation's description.
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
 // GetTrendParams defines parameters for GetTrend.
 type GetTrendParams struct {
 	Instrument Identifier      `form:"instrument" json:"instrument"`
@@ -2907,6 +3076,9 @@ type ServerInterface interface {
 	// CreateRun Post a run and fit its curves
 	// (POST /v1/runs)
 	CreateRun(ctx echo.Context, params CreateRunParams) error
+	// CreateRunCsv Post a run as CSV and fit its curves
+	// (POST /v1/runs/csv)
+	CreateRunCsv(ctx echo.Context, params CreateRunCsvParams) error
 	// GetRun A run as stored
 	// (GET /v1/runs/{id})
 	GetRun(ctx echo.Context, id RunID) error
@@ -3529,6 +3701,62 @@ func (w *ServerInterfaceWrapper) CreateRun(ctx echo.Context) error {
 	return err
 }
 
+// CreateRunCsv converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateRunCsv(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateRunCsvParams
+	// ------------- Required query parameter "method" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "method", ctx.QueryParams(), &params.Method, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter method: %s", err))
+	}
+
+	// ------------- Required query parameter "instrument" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "instrument", ctx.QueryParams(), &params.Instrument, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// ------------- Required query parameter "acquired_at" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "acquired_at", ctx.QueryParams(), &params.AcquiredAt, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter acquired_at: %s", err))
+	}
+
+	// ------------- Optional query parameter "operator" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "operator", ctx.QueryParams(), &params.Operator, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter operator: %s", err))
+	}
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateRunCsv(ctx, params)
+	return err
+}
+
 // GetRun converts echo context to params.
 func (w *ServerInterfaceWrapper) GetRun(ctx echo.Context) error {
 	var err error
@@ -3826,6 +4054,7 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/metrics", wrapper.GetMetrics, options.OperationMiddlewares["getMetrics"]...)
 	router.GET(options.BaseURL+"/openapi.yaml", wrapper.GetOpenAPI, options.OperationMiddlewares["getOpenAPI"]...)
 	router.POST(options.BaseURL+"/v1/runs", wrapper.CreateRun, options.OperationMiddlewares["createRun"]...)
+	router.POST(options.BaseURL+"/v1/runs/csv", wrapper.CreateRunCsv, options.OperationMiddlewares["createRunCsv"]...)
 	router.GET(options.BaseURL+"/v1/runs/:id", wrapper.GetRun, options.OperationMiddlewares["getRun"]...)
 	router.GET(options.BaseURL+"/v1/curves", wrapper.ListCurves, options.OperationMiddlewares["listCurves"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id", wrapper.GetCurve, options.OperationMiddlewares["getCurve"]...)
@@ -3866,20 +4095,84 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 
 }
 
-type BadRequestApplicationProblemPlusJSONResponse Problem
+type BadRequestResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type BadRequestApplicationProblemPlusJSONResponse struct {
+	Body Problem
 
-type ConflictApplicationProblemPlusJSONResponse Problem
+	Headers BadRequestResponseHeaders
+}
 
-type ForbiddenApplicationProblemPlusJSONResponse Problem
+type ConflictResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type ConflictApplicationProblemPlusJSONResponse struct {
+	Body Problem
 
-type InternalErrorApplicationProblemPlusJSONResponse Problem
+	Headers ConflictResponseHeaders
+}
 
-type NotFoundApplicationProblemPlusJSONResponse Problem
+type ForbiddenResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type ForbiddenApplicationProblemPlusJSONResponse struct {
+	Body Problem
 
-type PayloadTooLargeApplicationProblemPlusJSONResponse Problem
+	Headers ForbiddenResponseHeaders
+}
+
+type InternalErrorResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type InternalErrorApplicationProblemPlusJSONResponse struct {
+	Body Problem
+
+	Headers InternalErrorResponseHeaders
+}
+
+type NotFoundResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type NotFoundApplicationProblemPlusJSONResponse struct {
+	Body Problem
+
+	Headers NotFoundResponseHeaders
+}
+
+type PayloadTooLargeResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type PayloadTooLargeApplicationProblemPlusJSONResponse struct {
+	Body Problem
+
+	Headers PayloadTooLargeResponseHeaders
+}
 
 type ServiceUnavailableResponseHeaders struct {
-	RetryAfter int
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+	RetryAfter         int
 }
 type ServiceUnavailableApplicationProblemPlusJSONResponse struct {
 	Body Problem
@@ -3888,7 +4181,11 @@ type ServiceUnavailableApplicationProblemPlusJSONResponse struct {
 }
 
 type TooManyRequestsResponseHeaders struct {
-	RetryAfter int
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+	RetryAfter         int
 }
 type TooManyRequestsApplicationProblemPlusJSONResponse struct {
 	Body Problem
@@ -3897,7 +4194,11 @@ type TooManyRequestsApplicationProblemPlusJSONResponse struct {
 }
 
 type UnauthorizedResponseHeaders struct {
-	WWWAuthenticate string
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+	WWWAuthenticate    string
 }
 type UnauthorizedApplicationProblemPlusJSONResponse struct {
 	Body Problem
@@ -3905,9 +4206,29 @@ type UnauthorizedApplicationProblemPlusJSONResponse struct {
 	Headers UnauthorizedResponseHeaders
 }
 
-type UnprocessableEntityApplicationProblemPlusJSONResponse Problem
+type UnprocessableEntityResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type UnprocessableEntityApplicationProblemPlusJSONResponse struct {
+	Body Problem
 
-type UnsupportedMediaTypeApplicationProblemPlusJSONResponse Problem
+	Headers UnprocessableEntityResponseHeaders
+}
+
+type UnsupportedMediaTypeResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type UnsupportedMediaTypeApplicationProblemPlusJSONResponse struct {
+	Body Problem
+
+	Headers UnsupportedMediaTypeResponseHeaders
+}
 
 type GetHealthzRequestObject struct {
 }
@@ -3937,10 +4258,22 @@ type GetHealthz500ApplicationProblemPlusJSONResponse struct {
 func (response GetHealthz500ApplicationProblemPlusJSONResponse) VisitGetHealthzResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -3971,10 +4304,22 @@ type GetMetrics500ApplicationProblemPlusJSONResponse struct {
 func (response GetMetrics500ApplicationProblemPlusJSONResponse) VisitGetMetricsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4014,10 +4359,22 @@ type GetOpenAPI500ApplicationProblemPlusJSONResponse struct {
 func (response GetOpenAPI500ApplicationProblemPlusJSONResponse) VisitGetOpenAPIResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4051,10 +4408,22 @@ type GetReadyz500ApplicationProblemPlusJSONResponse struct {
 func (response GetReadyz500ApplicationProblemPlusJSONResponse) VisitGetReadyzResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4071,6 +4440,18 @@ func (response GetReadyz503ApplicationProblemPlusJSONResponse) VisitGetReadyzRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4106,10 +4487,22 @@ type SearchAudit400ApplicationProblemPlusJSONResponse struct {
 func (response SearchAudit400ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4126,6 +4519,18 @@ func (response SearchAudit401ApplicationProblemPlusJSONResponse) VisitSearchAudi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -4139,10 +4544,22 @@ type SearchAudit403ApplicationProblemPlusJSONResponse struct {
 func (response SearchAudit403ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4159,6 +4576,18 @@ func (response SearchAudit429ApplicationProblemPlusJSONResponse) VisitSearchAudi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -4172,10 +4601,22 @@ type SearchAudit500ApplicationProblemPlusJSONResponse struct {
 func (response SearchAudit500ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4192,6 +4633,18 @@ func (response SearchAudit503ApplicationProblemPlusJSONResponse) VisitSearchAudi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4227,10 +4680,22 @@ type ListCurves400ApplicationProblemPlusJSONResponse struct {
 func (response ListCurves400ApplicationProblemPlusJSONResponse) VisitListCurvesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4247,6 +4712,18 @@ func (response ListCurves401ApplicationProblemPlusJSONResponse) VisitListCurvesR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -4260,10 +4737,22 @@ type ListCurves403ApplicationProblemPlusJSONResponse struct {
 func (response ListCurves403ApplicationProblemPlusJSONResponse) VisitListCurvesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4280,6 +4769,18 @@ func (response ListCurves429ApplicationProblemPlusJSONResponse) VisitListCurvesR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -4293,10 +4794,22 @@ type ListCurves500ApplicationProblemPlusJSONResponse struct {
 func (response ListCurves500ApplicationProblemPlusJSONResponse) VisitListCurvesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4313,6 +4826,18 @@ func (response ListCurves503ApplicationProblemPlusJSONResponse) VisitListCurvesR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4348,10 +4873,22 @@ type GetCurve400ApplicationProblemPlusJSONResponse struct {
 func (response GetCurve400ApplicationProblemPlusJSONResponse) VisitGetCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4368,6 +4905,18 @@ func (response GetCurve401ApplicationProblemPlusJSONResponse) VisitGetCurveRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -4381,10 +4930,22 @@ type GetCurve403ApplicationProblemPlusJSONResponse struct {
 func (response GetCurve403ApplicationProblemPlusJSONResponse) VisitGetCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4397,10 +4958,22 @@ type GetCurve404ApplicationProblemPlusJSONResponse struct {
 func (response GetCurve404ApplicationProblemPlusJSONResponse) VisitGetCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4417,6 +4990,18 @@ func (response GetCurve429ApplicationProblemPlusJSONResponse) VisitGetCurveRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -4430,10 +5015,22 @@ type GetCurve500ApplicationProblemPlusJSONResponse struct {
 func (response GetCurve500ApplicationProblemPlusJSONResponse) VisitGetCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4450,6 +5047,18 @@ func (response GetCurve503ApplicationProblemPlusJSONResponse) VisitGetCurveRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4485,10 +5094,22 @@ type GetCurveAudit400ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveAudit400ApplicationProblemPlusJSONResponse) VisitGetCurveAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4505,6 +5126,18 @@ func (response GetCurveAudit401ApplicationProblemPlusJSONResponse) VisitGetCurve
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -4518,10 +5151,22 @@ type GetCurveAudit403ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveAudit403ApplicationProblemPlusJSONResponse) VisitGetCurveAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4534,10 +5179,22 @@ type GetCurveAudit404ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveAudit404ApplicationProblemPlusJSONResponse) VisitGetCurveAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4554,6 +5211,18 @@ func (response GetCurveAudit429ApplicationProblemPlusJSONResponse) VisitGetCurve
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -4567,10 +5236,22 @@ type GetCurveAudit500ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveAudit500ApplicationProblemPlusJSONResponse) VisitGetCurveAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4587,6 +5268,18 @@ func (response GetCurveAudit503ApplicationProblemPlusJSONResponse) VisitGetCurve
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4631,10 +5324,22 @@ type CreateExclusion400ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion400ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4651,6 +5356,18 @@ func (response CreateExclusion401ApplicationProblemPlusJSONResponse) VisitCreate
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -4664,10 +5381,22 @@ type CreateExclusion403ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion403ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4680,10 +5409,22 @@ type CreateExclusion404ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion404ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4696,10 +5437,22 @@ type CreateExclusion409ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion409ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4712,10 +5465,22 @@ type CreateExclusion413ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion413ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4728,10 +5493,22 @@ type CreateExclusion415ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion415ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4744,10 +5521,22 @@ type CreateExclusion422ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion422ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4764,6 +5553,18 @@ func (response CreateExclusion429ApplicationProblemPlusJSONResponse) VisitCreate
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -4777,10 +5578,22 @@ type CreateExclusion500ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion500ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4797,6 +5610,18 @@ func (response CreateExclusion503ApplicationProblemPlusJSONResponse) VisitCreate
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4838,10 +5663,22 @@ type GetCurvePlotPNG400ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotPNG400ApplicationProblemPlusJSONResponse) VisitGetCurvePlotPNGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4858,6 +5695,18 @@ func (response GetCurvePlotPNG401ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -4871,10 +5720,22 @@ type GetCurvePlotPNG403ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotPNG403ApplicationProblemPlusJSONResponse) VisitGetCurvePlotPNGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4887,10 +5748,22 @@ type GetCurvePlotPNG404ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotPNG404ApplicationProblemPlusJSONResponse) VisitGetCurvePlotPNGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4907,6 +5780,18 @@ func (response GetCurvePlotPNG429ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -4920,10 +5805,22 @@ type GetCurvePlotPNG500ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotPNG500ApplicationProblemPlusJSONResponse) VisitGetCurvePlotPNGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4940,6 +5837,18 @@ func (response GetCurvePlotPNG503ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4981,10 +5890,22 @@ type GetCurvePlotSVG400ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotSVG400ApplicationProblemPlusJSONResponse) VisitGetCurvePlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5001,6 +5922,18 @@ func (response GetCurvePlotSVG401ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5014,10 +5947,22 @@ type GetCurvePlotSVG403ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotSVG403ApplicationProblemPlusJSONResponse) VisitGetCurvePlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5030,10 +5975,22 @@ type GetCurvePlotSVG404ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotSVG404ApplicationProblemPlusJSONResponse) VisitGetCurvePlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5050,6 +6007,18 @@ func (response GetCurvePlotSVG429ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5063,10 +6032,22 @@ type GetCurvePlotSVG500ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotSVG500ApplicationProblemPlusJSONResponse) VisitGetCurvePlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5083,6 +6064,18 @@ func (response GetCurvePlotSVG503ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -5119,10 +6112,22 @@ type CreatePredictions400ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions400ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5139,6 +6144,18 @@ func (response CreatePredictions401ApplicationProblemPlusJSONResponse) VisitCrea
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5152,10 +6169,22 @@ type CreatePredictions403ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions403ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5168,10 +6197,22 @@ type CreatePredictions404ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions404ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5184,10 +6225,22 @@ type CreatePredictions409ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions409ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5200,10 +6253,22 @@ type CreatePredictions413ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions413ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5216,10 +6281,22 @@ type CreatePredictions415ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions415ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5232,10 +6309,22 @@ type CreatePredictions422ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions422ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5252,6 +6341,18 @@ func (response CreatePredictions429ApplicationProblemPlusJSONResponse) VisitCrea
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5265,10 +6366,22 @@ type CreatePredictions500ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions500ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5285,6 +6398,18 @@ func (response CreatePredictions503ApplicationProblemPlusJSONResponse) VisitCrea
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -5320,10 +6445,22 @@ type RecalculateCurve400ApplicationProblemPlusJSONResponse struct {
 func (response RecalculateCurve400ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5340,6 +6477,18 @@ func (response RecalculateCurve401ApplicationProblemPlusJSONResponse) VisitRecal
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5353,10 +6502,22 @@ type RecalculateCurve403ApplicationProblemPlusJSONResponse struct {
 func (response RecalculateCurve403ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5369,10 +6530,22 @@ type RecalculateCurve404ApplicationProblemPlusJSONResponse struct {
 func (response RecalculateCurve404ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5389,6 +6562,18 @@ func (response RecalculateCurve429ApplicationProblemPlusJSONResponse) VisitRecal
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5402,10 +6587,22 @@ type RecalculateCurve500ApplicationProblemPlusJSONResponse struct {
 func (response RecalculateCurve500ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5422,6 +6619,18 @@ func (response RecalculateCurve503ApplicationProblemPlusJSONResponse) VisitRecal
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -5463,10 +6672,22 @@ type GetCurveRecordPDF400ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveRecordPDF400ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5483,6 +6704,18 @@ func (response GetCurveRecordPDF401ApplicationProblemPlusJSONResponse) VisitGetC
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5496,10 +6729,22 @@ type GetCurveRecordPDF403ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveRecordPDF403ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5512,10 +6757,22 @@ type GetCurveRecordPDF404ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveRecordPDF404ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5532,6 +6789,18 @@ func (response GetCurveRecordPDF429ApplicationProblemPlusJSONResponse) VisitGetC
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5545,10 +6814,22 @@ type GetCurveRecordPDF500ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveRecordPDF500ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5565,6 +6846,18 @@ func (response GetCurveRecordPDF503ApplicationProblemPlusJSONResponse) VisitGetC
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -5601,10 +6894,22 @@ type ReviewCurve400ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve400ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5621,6 +6926,18 @@ func (response ReviewCurve401ApplicationProblemPlusJSONResponse) VisitReviewCurv
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5634,10 +6951,22 @@ type ReviewCurve403ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve403ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5650,10 +6979,22 @@ type ReviewCurve404ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve404ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5666,10 +7007,22 @@ type ReviewCurve409ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve409ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5682,10 +7035,22 @@ type ReviewCurve413ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve413ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5698,10 +7063,22 @@ type ReviewCurve415ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve415ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5714,10 +7091,22 @@ type ReviewCurve422ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve422ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5734,6 +7123,18 @@ func (response ReviewCurve429ApplicationProblemPlusJSONResponse) VisitReviewCurv
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5747,10 +7148,22 @@ type ReviewCurve500ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve500ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5767,6 +7180,18 @@ func (response ReviewCurve503ApplicationProblemPlusJSONResponse) VisitReviewCurv
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -5802,10 +7227,22 @@ type ListCurveSignatures400ApplicationProblemPlusJSONResponse struct {
 func (response ListCurveSignatures400ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5822,6 +7259,18 @@ func (response ListCurveSignatures401ApplicationProblemPlusJSONResponse) VisitLi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5835,10 +7284,22 @@ type ListCurveSignatures403ApplicationProblemPlusJSONResponse struct {
 func (response ListCurveSignatures403ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5851,10 +7312,22 @@ type ListCurveSignatures404ApplicationProblemPlusJSONResponse struct {
 func (response ListCurveSignatures404ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5871,6 +7344,18 @@ func (response ListCurveSignatures429ApplicationProblemPlusJSONResponse) VisitLi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5884,10 +7369,22 @@ type ListCurveSignatures500ApplicationProblemPlusJSONResponse struct {
 func (response ListCurveSignatures500ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5904,6 +7401,18 @@ func (response ListCurveSignatures503ApplicationProblemPlusJSONResponse) VisitLi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -5940,10 +7449,22 @@ type SignCurve400ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve400ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5960,6 +7481,18 @@ func (response SignCurve401ApplicationProblemPlusJSONResponse) VisitSignCurveRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5973,10 +7506,22 @@ type SignCurve403ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve403ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5989,10 +7534,22 @@ type SignCurve404ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve404ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6005,10 +7562,22 @@ type SignCurve409ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve409ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6021,10 +7590,22 @@ type SignCurve413ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve413ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6037,10 +7618,22 @@ type SignCurve415ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve415ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6053,10 +7646,22 @@ type SignCurve422ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve422ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6073,6 +7678,18 @@ func (response SignCurve429ApplicationProblemPlusJSONResponse) VisitSignCurveRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -6086,10 +7703,22 @@ type SignCurve500ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve500ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6106,6 +7735,18 @@ func (response SignCurve503ApplicationProblemPlusJSONResponse) VisitSignCurveRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -6141,10 +7782,22 @@ type ListVerifications400ApplicationProblemPlusJSONResponse struct {
 func (response ListVerifications400ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6161,6 +7814,18 @@ func (response ListVerifications401ApplicationProblemPlusJSONResponse) VisitList
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -6174,10 +7839,22 @@ type ListVerifications403ApplicationProblemPlusJSONResponse struct {
 func (response ListVerifications403ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6190,10 +7867,22 @@ type ListVerifications404ApplicationProblemPlusJSONResponse struct {
 func (response ListVerifications404ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6210,6 +7899,18 @@ func (response ListVerifications429ApplicationProblemPlusJSONResponse) VisitList
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -6223,10 +7924,22 @@ type ListVerifications500ApplicationProblemPlusJSONResponse struct {
 func (response ListVerifications500ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6243,6 +7956,18 @@ func (response ListVerifications503ApplicationProblemPlusJSONResponse) VisitList
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -6279,10 +8004,22 @@ type CreateVerification400ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification400ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6299,6 +8036,18 @@ func (response CreateVerification401ApplicationProblemPlusJSONResponse) VisitCre
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -6312,10 +8061,22 @@ type CreateVerification403ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification403ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6328,10 +8089,22 @@ type CreateVerification404ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification404ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6344,10 +8117,22 @@ type CreateVerification409ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification409ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6360,10 +8145,22 @@ type CreateVerification413ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification413ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6376,10 +8173,22 @@ type CreateVerification415ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification415ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6392,10 +8201,22 @@ type CreateVerification422ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification422ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6412,6 +8233,18 @@ func (response CreateVerification429ApplicationProblemPlusJSONResponse) VisitCre
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -6425,10 +8258,22 @@ type CreateVerification500ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification500ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6445,6 +8290,18 @@ func (response CreateVerification503ApplicationProblemPlusJSONResponse) VisitCre
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -6481,10 +8338,22 @@ type GetCurveInForce400ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveInForce400ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6501,6 +8370,18 @@ func (response GetCurveInForce401ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -6514,10 +8395,22 @@ type GetCurveInForce403ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveInForce403ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6530,10 +8423,22 @@ type GetCurveInForce404ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveInForce404ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6550,6 +8455,18 @@ func (response GetCurveInForce429ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -6563,10 +8480,22 @@ type GetCurveInForce500ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveInForce500ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6583,6 +8512,18 @@ func (response GetCurveInForce503ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -6619,10 +8560,22 @@ type CreateInstrumentPredictions400ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions400ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6639,6 +8592,18 @@ func (response CreateInstrumentPredictions401ApplicationProblemPlusJSONResponse)
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -6652,10 +8617,22 @@ type CreateInstrumentPredictions403ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions403ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6668,10 +8645,22 @@ type CreateInstrumentPredictions404ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions404ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6684,10 +8673,22 @@ type CreateInstrumentPredictions409ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions409ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6700,10 +8701,22 @@ type CreateInstrumentPredictions413ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions413ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6716,10 +8729,22 @@ type CreateInstrumentPredictions415ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions415ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6732,10 +8757,22 @@ type CreateInstrumentPredictions422ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions422ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6752,6 +8789,18 @@ func (response CreateInstrumentPredictions429ApplicationProblemPlusJSONResponse)
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -6765,10 +8814,22 @@ type CreateInstrumentPredictions500ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions500ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6785,6 +8846,18 @@ func (response CreateInstrumentPredictions503ApplicationProblemPlusJSONResponse)
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -6819,10 +8892,22 @@ type ListMethods400ApplicationProblemPlusJSONResponse struct {
 func (response ListMethods400ApplicationProblemPlusJSONResponse) VisitListMethodsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6839,6 +8924,18 @@ func (response ListMethods401ApplicationProblemPlusJSONResponse) VisitListMethod
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -6852,10 +8949,22 @@ type ListMethods403ApplicationProblemPlusJSONResponse struct {
 func (response ListMethods403ApplicationProblemPlusJSONResponse) VisitListMethodsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6872,6 +8981,18 @@ func (response ListMethods429ApplicationProblemPlusJSONResponse) VisitListMethod
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -6885,10 +9006,22 @@ type ListMethods500ApplicationProblemPlusJSONResponse struct {
 func (response ListMethods500ApplicationProblemPlusJSONResponse) VisitListMethodsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6905,6 +9038,18 @@ func (response ListMethods503ApplicationProblemPlusJSONResponse) VisitListMethod
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -6962,10 +9107,22 @@ type CreateMethod400ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod400ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6982,6 +9139,18 @@ func (response CreateMethod401ApplicationProblemPlusJSONResponse) VisitCreateMet
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -6995,10 +9164,22 @@ type CreateMethod403ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod403ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7011,10 +9192,22 @@ type CreateMethod409ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod409ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7027,10 +9220,22 @@ type CreateMethod413ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod413ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7043,10 +9248,22 @@ type CreateMethod415ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod415ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7059,10 +9276,22 @@ type CreateMethod422ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod422ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7079,6 +9308,18 @@ func (response CreateMethod429ApplicationProblemPlusJSONResponse) VisitCreateMet
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7092,10 +9333,22 @@ type CreateMethod500ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod500ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7112,6 +9365,18 @@ func (response CreateMethod503ApplicationProblemPlusJSONResponse) VisitCreateMet
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7148,10 +9413,22 @@ type GetMethod400ApplicationProblemPlusJSONResponse struct {
 func (response GetMethod400ApplicationProblemPlusJSONResponse) VisitGetMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7168,6 +9445,18 @@ func (response GetMethod401ApplicationProblemPlusJSONResponse) VisitGetMethodRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -7181,10 +9470,22 @@ type GetMethod403ApplicationProblemPlusJSONResponse struct {
 func (response GetMethod403ApplicationProblemPlusJSONResponse) VisitGetMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7197,10 +9498,22 @@ type GetMethod404ApplicationProblemPlusJSONResponse struct {
 func (response GetMethod404ApplicationProblemPlusJSONResponse) VisitGetMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7217,6 +9530,18 @@ func (response GetMethod429ApplicationProblemPlusJSONResponse) VisitGetMethodRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7230,10 +9555,22 @@ type GetMethod500ApplicationProblemPlusJSONResponse struct {
 func (response GetMethod500ApplicationProblemPlusJSONResponse) VisitGetMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7250,6 +9587,18 @@ func (response GetMethod503ApplicationProblemPlusJSONResponse) VisitGetMethodRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7284,10 +9633,22 @@ type ListPeople400ApplicationProblemPlusJSONResponse struct {
 func (response ListPeople400ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7304,6 +9665,18 @@ func (response ListPeople401ApplicationProblemPlusJSONResponse) VisitListPeopleR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -7317,10 +9690,22 @@ type ListPeople403ApplicationProblemPlusJSONResponse struct {
 func (response ListPeople403ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7337,6 +9722,18 @@ func (response ListPeople429ApplicationProblemPlusJSONResponse) VisitListPeopleR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7350,10 +9747,22 @@ type ListPeople500ApplicationProblemPlusJSONResponse struct {
 func (response ListPeople500ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7370,6 +9779,18 @@ func (response ListPeople503ApplicationProblemPlusJSONResponse) VisitListPeopleR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7405,10 +9826,22 @@ type CreatePerson400ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson400ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7425,6 +9858,18 @@ func (response CreatePerson401ApplicationProblemPlusJSONResponse) VisitCreatePer
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -7438,10 +9883,22 @@ type CreatePerson403ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson403ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7454,10 +9911,22 @@ type CreatePerson409ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson409ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7470,10 +9939,22 @@ type CreatePerson413ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson413ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7486,10 +9967,22 @@ type CreatePerson415ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson415ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7502,10 +9995,22 @@ type CreatePerson422ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson422ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7522,6 +10027,18 @@ func (response CreatePerson429ApplicationProblemPlusJSONResponse) VisitCreatePer
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7535,10 +10052,22 @@ type CreatePerson500ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson500ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7555,6 +10084,18 @@ func (response CreatePerson503ApplicationProblemPlusJSONResponse) VisitCreatePer
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7590,10 +10131,22 @@ type DisablePerson400ApplicationProblemPlusJSONResponse struct {
 func (response DisablePerson400ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7610,6 +10163,18 @@ func (response DisablePerson401ApplicationProblemPlusJSONResponse) VisitDisableP
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -7623,10 +10188,22 @@ type DisablePerson403ApplicationProblemPlusJSONResponse struct {
 func (response DisablePerson403ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7639,10 +10216,22 @@ type DisablePerson404ApplicationProblemPlusJSONResponse struct {
 func (response DisablePerson404ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7659,6 +10248,18 @@ func (response DisablePerson429ApplicationProblemPlusJSONResponse) VisitDisableP
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7672,10 +10273,22 @@ type DisablePerson500ApplicationProblemPlusJSONResponse struct {
 func (response DisablePerson500ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7692,6 +10305,18 @@ func (response DisablePerson503ApplicationProblemPlusJSONResponse) VisitDisableP
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7727,10 +10352,22 @@ type UnlockPerson400ApplicationProblemPlusJSONResponse struct {
 func (response UnlockPerson400ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7747,6 +10384,18 @@ func (response UnlockPerson401ApplicationProblemPlusJSONResponse) VisitUnlockPer
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -7760,10 +10409,22 @@ type UnlockPerson403ApplicationProblemPlusJSONResponse struct {
 func (response UnlockPerson403ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7776,10 +10437,22 @@ type UnlockPerson404ApplicationProblemPlusJSONResponse struct {
 func (response UnlockPerson404ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7796,6 +10469,18 @@ func (response UnlockPerson429ApplicationProblemPlusJSONResponse) VisitUnlockPer
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7809,10 +10494,22 @@ type UnlockPerson500ApplicationProblemPlusJSONResponse struct {
 func (response UnlockPerson500ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7829,6 +10526,18 @@ func (response UnlockPerson503ApplicationProblemPlusJSONResponse) VisitUnlockPer
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7864,10 +10573,22 @@ type ListResultEvents400ApplicationProblemPlusJSONResponse struct {
 func (response ListResultEvents400ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7884,6 +10605,18 @@ func (response ListResultEvents401ApplicationProblemPlusJSONResponse) VisitListR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -7897,10 +10630,22 @@ type ListResultEvents403ApplicationProblemPlusJSONResponse struct {
 func (response ListResultEvents403ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7917,6 +10662,18 @@ func (response ListResultEvents429ApplicationProblemPlusJSONResponse) VisitListR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7930,10 +10687,22 @@ type ListResultEvents500ApplicationProblemPlusJSONResponse struct {
 func (response ListResultEvents500ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7950,6 +10719,18 @@ func (response ListResultEvents503ApplicationProblemPlusJSONResponse) VisitListR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7997,10 +10778,22 @@ type CreateRun400ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun400ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8017,6 +10810,18 @@ func (response CreateRun401ApplicationProblemPlusJSONResponse) VisitCreateRunRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8030,10 +10835,22 @@ type CreateRun403ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun403ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8046,10 +10863,22 @@ type CreateRun409ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun409ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8062,10 +10891,22 @@ type CreateRun413ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun413ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8078,10 +10919,22 @@ type CreateRun415ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun415ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8094,10 +10947,22 @@ type CreateRun422ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun422ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8114,6 +10979,18 @@ func (response CreateRun429ApplicationProblemPlusJSONResponse) VisitCreateRunRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -8127,10 +11004,22 @@ type CreateRun500ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun500ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8147,6 +11036,334 @@ func (response CreateRun503ApplicationProblemPlusJSONResponse) VisitCreateRunRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsvRequestObject struct {
+	Params CreateRunCsvParams
+	Body   io.Reader
+}
+
+type CreateRunCsvResponseObject interface {
+	VisitCreateRunCsvResponse(w http.ResponseWriter) error
+}
+
+type CreateRunCsv201ResponseHeaders struct {
+	IdempotencyReplayed bool
+	Location            string
+}
+
+type CreateRunCsv201JSONResponse struct {
+	Body    RunCreated
+	Headers CreateRunCsv201ResponseHeaders
+}
+
+func (response CreateRunCsv201JSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.Header().Set("Idempotency-Replayed", fmt.Sprint(response.Headers.IdempotencyReplayed))
+	w.Header().Set("Location", fmt.Sprint(response.Headers.Location))
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv400ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv401ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv403ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv409ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv413ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv415ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv422ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv429ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv500ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv503ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -8182,10 +11399,22 @@ type GetRun400ApplicationProblemPlusJSONResponse struct {
 func (response GetRun400ApplicationProblemPlusJSONResponse) VisitGetRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8202,6 +11431,18 @@ func (response GetRun401ApplicationProblemPlusJSONResponse) VisitGetRunResponse(
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8215,10 +11456,22 @@ type GetRun403ApplicationProblemPlusJSONResponse struct {
 func (response GetRun403ApplicationProblemPlusJSONResponse) VisitGetRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8231,10 +11484,22 @@ type GetRun404ApplicationProblemPlusJSONResponse struct {
 func (response GetRun404ApplicationProblemPlusJSONResponse) VisitGetRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8251,6 +11516,18 @@ func (response GetRun429ApplicationProblemPlusJSONResponse) VisitGetRunResponse(
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -8264,10 +11541,22 @@ type GetRun500ApplicationProblemPlusJSONResponse struct {
 func (response GetRun500ApplicationProblemPlusJSONResponse) VisitGetRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8284,6 +11573,18 @@ func (response GetRun503ApplicationProblemPlusJSONResponse) VisitGetRunResponse(
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -8373,10 +11674,22 @@ type GetRunResults400ApplicationProblemPlusJSONResponse struct {
 func (response GetRunResults400ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8393,6 +11706,18 @@ func (response GetRunResults401ApplicationProblemPlusJSONResponse) VisitGetRunRe
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8406,10 +11731,22 @@ type GetRunResults403ApplicationProblemPlusJSONResponse struct {
 func (response GetRunResults403ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8422,10 +11759,22 @@ type GetRunResults404ApplicationProblemPlusJSONResponse struct {
 func (response GetRunResults404ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8442,6 +11791,18 @@ func (response GetRunResults429ApplicationProblemPlusJSONResponse) VisitGetRunRe
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -8455,10 +11816,22 @@ type GetRunResults500ApplicationProblemPlusJSONResponse struct {
 func (response GetRunResults500ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8475,6 +11848,18 @@ func (response GetRunResults503ApplicationProblemPlusJSONResponse) VisitGetRunRe
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -8511,10 +11896,22 @@ type CreateRunSamples400ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples400ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8531,6 +11928,18 @@ func (response CreateRunSamples401ApplicationProblemPlusJSONResponse) VisitCreat
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8544,10 +11953,22 @@ type CreateRunSamples403ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples403ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8560,10 +11981,22 @@ type CreateRunSamples404ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples404ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8576,10 +12009,22 @@ type CreateRunSamples409ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples409ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8592,10 +12037,22 @@ type CreateRunSamples413ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples413ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8608,10 +12065,22 @@ type CreateRunSamples415ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples415ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8624,10 +12093,22 @@ type CreateRunSamples422ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples422ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8644,6 +12125,18 @@ func (response CreateRunSamples429ApplicationProblemPlusJSONResponse) VisitCreat
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -8657,10 +12150,22 @@ type CreateRunSamples500ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples500ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8677,6 +12182,18 @@ func (response CreateRunSamples503ApplicationProblemPlusJSONResponse) VisitCreat
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -8712,10 +12229,22 @@ type GetSampleResults400ApplicationProblemPlusJSONResponse struct {
 func (response GetSampleResults400ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8732,6 +12261,18 @@ func (response GetSampleResults401ApplicationProblemPlusJSONResponse) VisitGetSa
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8745,10 +12286,22 @@ type GetSampleResults403ApplicationProblemPlusJSONResponse struct {
 func (response GetSampleResults403ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8761,10 +12314,22 @@ type GetSampleResults404ApplicationProblemPlusJSONResponse struct {
 func (response GetSampleResults404ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8781,6 +12346,18 @@ func (response GetSampleResults429ApplicationProblemPlusJSONResponse) VisitGetSa
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -8794,10 +12371,22 @@ type GetSampleResults500ApplicationProblemPlusJSONResponse struct {
 func (response GetSampleResults500ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8814,6 +12403,18 @@ func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSa
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -8850,10 +12451,22 @@ type WithdrawSignature400ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature400ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8870,6 +12483,18 @@ func (response WithdrawSignature401ApplicationProblemPlusJSONResponse) VisitWith
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8883,10 +12508,22 @@ type WithdrawSignature403ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature403ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8899,10 +12536,22 @@ type WithdrawSignature404ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature404ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8915,10 +12564,22 @@ type WithdrawSignature409ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature409ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8931,10 +12592,22 @@ type WithdrawSignature413ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature413ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8947,10 +12620,22 @@ type WithdrawSignature415ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature415ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8963,10 +12648,22 @@ type WithdrawSignature422ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature422ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8983,6 +12680,18 @@ func (response WithdrawSignature429ApplicationProblemPlusJSONResponse) VisitWith
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -8996,10 +12705,22 @@ type WithdrawSignature500ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature500ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9016,6 +12737,18 @@ func (response WithdrawSignature503ApplicationProblemPlusJSONResponse) VisitWith
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9050,10 +12783,22 @@ type ListStandardMaterials400ApplicationProblemPlusJSONResponse struct {
 func (response ListStandardMaterials400ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9070,6 +12815,18 @@ func (response ListStandardMaterials401ApplicationProblemPlusJSONResponse) Visit
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9083,10 +12840,22 @@ type ListStandardMaterials403ApplicationProblemPlusJSONResponse struct {
 func (response ListStandardMaterials403ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9103,6 +12872,18 @@ func (response ListStandardMaterials429ApplicationProblemPlusJSONResponse) Visit
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9116,10 +12897,22 @@ type ListStandardMaterials500ApplicationProblemPlusJSONResponse struct {
 func (response ListStandardMaterials500ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9136,6 +12929,18 @@ func (response ListStandardMaterials503ApplicationProblemPlusJSONResponse) Visit
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9179,10 +12984,22 @@ type CreateStandardMaterial400ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial400ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9199,6 +13016,18 @@ func (response CreateStandardMaterial401ApplicationProblemPlusJSONResponse) Visi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9212,10 +13041,22 @@ type CreateStandardMaterial403ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial403ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9228,10 +13069,22 @@ type CreateStandardMaterial409ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial409ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9244,10 +13097,22 @@ type CreateStandardMaterial413ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial413ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9260,10 +13125,22 @@ type CreateStandardMaterial415ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial415ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9276,10 +13153,22 @@ type CreateStandardMaterial422ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial422ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9296,6 +13185,18 @@ func (response CreateStandardMaterial429ApplicationProblemPlusJSONResponse) Visi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9309,10 +13210,22 @@ type CreateStandardMaterial500ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial500ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9329,6 +13242,18 @@ func (response CreateStandardMaterial503ApplicationProblemPlusJSONResponse) Visi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9364,10 +13289,22 @@ type GetStandardMaterial400ApplicationProblemPlusJSONResponse struct {
 func (response GetStandardMaterial400ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9384,6 +13321,18 @@ func (response GetStandardMaterial401ApplicationProblemPlusJSONResponse) VisitGe
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9397,10 +13346,22 @@ type GetStandardMaterial403ApplicationProblemPlusJSONResponse struct {
 func (response GetStandardMaterial403ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9413,10 +13374,22 @@ type GetStandardMaterial404ApplicationProblemPlusJSONResponse struct {
 func (response GetStandardMaterial404ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9433,6 +13406,18 @@ func (response GetStandardMaterial429ApplicationProblemPlusJSONResponse) VisitGe
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9446,10 +13431,22 @@ type GetStandardMaterial500ApplicationProblemPlusJSONResponse struct {
 func (response GetStandardMaterial500ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9466,6 +13463,18 @@ func (response GetStandardMaterial503ApplicationProblemPlusJSONResponse) VisitGe
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9501,10 +13510,22 @@ type CreateToken400ApplicationProblemPlusJSONResponse struct {
 func (response CreateToken400ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9521,6 +13542,18 @@ func (response CreateToken401ApplicationProblemPlusJSONResponse) VisitCreateToke
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9534,10 +13567,22 @@ type CreateToken403ApplicationProblemPlusJSONResponse struct {
 func (response CreateToken403ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9550,10 +13595,22 @@ type CreateToken413ApplicationProblemPlusJSONResponse struct {
 func (response CreateToken413ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9566,10 +13623,22 @@ type CreateToken415ApplicationProblemPlusJSONResponse struct {
 func (response CreateToken415ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9582,10 +13651,22 @@ type CreateToken422ApplicationProblemPlusJSONResponse struct {
 func (response CreateToken422ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9602,6 +13683,18 @@ func (response CreateToken429ApplicationProblemPlusJSONResponse) VisitCreateToke
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9615,10 +13708,22 @@ type CreateToken500ApplicationProblemPlusJSONResponse struct {
 func (response CreateToken500ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9635,6 +13740,18 @@ func (response CreateToken503ApplicationProblemPlusJSONResponse) VisitCreateToke
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9664,10 +13781,22 @@ type DeleteToken400ApplicationProblemPlusJSONResponse struct {
 func (response DeleteToken400ApplicationProblemPlusJSONResponse) VisitDeleteTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9684,6 +13813,18 @@ func (response DeleteToken401ApplicationProblemPlusJSONResponse) VisitDeleteToke
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9697,10 +13838,22 @@ type DeleteToken403ApplicationProblemPlusJSONResponse struct {
 func (response DeleteToken403ApplicationProblemPlusJSONResponse) VisitDeleteTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9713,10 +13866,22 @@ type DeleteToken404ApplicationProblemPlusJSONResponse struct {
 func (response DeleteToken404ApplicationProblemPlusJSONResponse) VisitDeleteTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9733,6 +13898,18 @@ func (response DeleteToken429ApplicationProblemPlusJSONResponse) VisitDeleteToke
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9746,10 +13923,22 @@ type DeleteToken500ApplicationProblemPlusJSONResponse struct {
 func (response DeleteToken500ApplicationProblemPlusJSONResponse) VisitDeleteTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9766,6 +13955,18 @@ func (response DeleteToken503ApplicationProblemPlusJSONResponse) VisitDeleteToke
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9801,10 +14002,22 @@ type GetTrend400ApplicationProblemPlusJSONResponse struct {
 func (response GetTrend400ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9821,6 +14034,18 @@ func (response GetTrend401ApplicationProblemPlusJSONResponse) VisitGetTrendRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9834,10 +14059,22 @@ type GetTrend403ApplicationProblemPlusJSONResponse struct {
 func (response GetTrend403ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9854,6 +14091,18 @@ func (response GetTrend429ApplicationProblemPlusJSONResponse) VisitGetTrendRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9867,10 +14116,22 @@ type GetTrend500ApplicationProblemPlusJSONResponse struct {
 func (response GetTrend500ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9887,6 +14148,18 @@ func (response GetTrend503ApplicationProblemPlusJSONResponse) VisitGetTrendRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9928,10 +14201,22 @@ type GetTrendPlotSVG400ApplicationProblemPlusJSONResponse struct {
 func (response GetTrendPlotSVG400ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9948,6 +14233,18 @@ func (response GetTrendPlotSVG401ApplicationProblemPlusJSONResponse) VisitGetTre
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9961,10 +14258,22 @@ type GetTrendPlotSVG403ApplicationProblemPlusJSONResponse struct {
 func (response GetTrendPlotSVG403ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9981,6 +14290,18 @@ func (response GetTrendPlotSVG429ApplicationProblemPlusJSONResponse) VisitGetTre
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9994,10 +14315,22 @@ type GetTrendPlotSVG500ApplicationProblemPlusJSONResponse struct {
 func (response GetTrendPlotSVG500ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10014,6 +14347,18 @@ func (response GetTrendPlotSVG503ApplicationProblemPlusJSONResponse) VisitGetTre
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -10112,6 +14457,9 @@ type StrictServerInterface interface {
 	// CreateRun Post a run and fit its curves
 	// (POST /v1/runs)
 	CreateRun(ctx context.Context, request CreateRunRequestObject) (CreateRunResponseObject, error)
+	// CreateRunCsv Post a run as CSV and fit its curves
+	// (POST /v1/runs/csv)
+	CreateRunCsv(ctx context.Context, request CreateRunCsvRequestObject) (CreateRunCsvResponseObject, error)
 	// GetRun A run as stored
 	// (GET /v1/runs/{id})
 	GetRun(ctx context.Context, request GetRunRequestObject) (GetRunResponseObject, error)
@@ -11110,6 +15458,33 @@ func (sh *strictHandler) CreateRun(ctx echo.Context, params CreateRunParams) err
 	return nil
 }
 
+// CreateRunCsv operation middleware
+func (sh *strictHandler) CreateRunCsv(ctx echo.Context, params CreateRunCsvParams) error {
+	var request CreateRunCsvRequestObject
+
+	request.Params = params
+
+	request.Body = ctx.Request().Body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateRunCsv(ctx.Request().Context(), request.(CreateRunCsvRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateRunCsv")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateRunCsvResponseObject); ok {
+		return validResponse.VisitCreateRunCsvResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // GetRun operation middleware
 func (sh *strictHandler) GetRun(ctx echo.Context, id RunID) error {
 	var request GetRunRequestObject
@@ -11501,522 +15876,566 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P1fbxzHlieKfpW43LOhKu9ksUhRtkViA0NTUlu99c+kZPfMLrsymBnFylZWRDkiimRtSxd9p4GLntee",
-	"hwHm4eICc86Z527gwH1w3tw4b4Puz3D8SQ7WWhGRkVlZxSqKkr1ntIFtsTIz/kesWH9/64etTE2mSgpp",
-	"zdbBD1tjwXOh8c8TYfX8aGSFhl+5MJkuprZQcutg61RkSuaGWcUueWHZmRgpLZiGIoU8720lW1p8Pyu0",
-	"yLcOrJ6JZMtkYzHhUNWkkMVkNtk66Cdbdj4VWwdbhbTiXOitt2/fJltTrvlEWNeN45m+EI8fLPbh5Viw",
-	"DF7eMazIockCHk+5HW8lW5JPsOJ8ZVf+jRajrYOt3+xUs7BDb83Oq1ePH2xBfx7nYjJVVshs/gcxX+zI",
-	"EcvKQki7nY2VEZK9FnPW4QzKs8Iwzs6Vylk2VkUmusyOuWUT/lrAG5iwQuQDCV0UxjLDR+KQGSGYHQum",
-	"pkJzaOWOYVGbvYH0o6X1qsYb9XUbOlubd371RMhzO9462N37PIF1CL9h1q0VGur87o9H2/+eb/+pv32/",
-	"NzzY/vaH3WR37/O3/2YrLJexupDnNDnSWD2bCGnbV6gI71mRC2mLUSF0wrhhU2WsyNllYcessIbpmTTL",
-	"VrFq5Kar+Tg0jt1+wc/F8Uwbpdu7nUpxZYcZfpEyNcLlmGpxUaiZYVN+Lg4ZPzMwrJHS+HZUaGPxVRjF",
-	"9zOh59UwqLqtdbvs+gfdPZnJZUdAz+T7PQBvobyZKmkEHsgveH5CuxV+ZUpat/h8Oi2LDPfrzlSrs1JM",
-	"fvfXBjr6w5otvqBS1Gh9qE95OVJ6InJm5tLyq4RdaiXPGexIpjTj7IKXM8HUzJoip+ND1R6wiS87kH95",
-	"+vxZwjijHcwux0ILxpmcTc6EZmeiVPLcJIxLNpOvpbqUbFSIMoci7oAwpQdSc3ku2EWhSm4FvsWlZoF0",
-	"0THPlTBMKstgauZwbN8mW8dKjsoi+6CzhxtFGDXTGZBLY7kVsHHPCiDi+JLoT4cTTWWw1cWlyBkvteD5",
-	"PGF8IOkVnFg1s4yzUWETxkNheEETzyeCFRUpQpJobFGWrJADGP752HbdfDzCbuRCfugJseq1kKzk2WvD",
-	"xAUsn8nUVLCyQMJUSJZebfujs43vTNrbQqIHO4GXD7VW+kN22zfMBLTcYzCMM5XPmeFzw5Qs52ywVdQ+",
-	"GmwxLvPaIgOxeJtsPVP2kZrJ/EPPO1CmPGzH6pCIq8JY7NkLPi8Vz18q9YTrc/GhO4gzKq4yIdzpMEJf",
-	"CH3HsEzJUXE+0yJnZTEpqLenQl8UmXgl+QUvSn5WfvAO59zyM24Ey7iEmTyDtebZWORMqsskjKHIBHAk",
-	"ZjyzFshfri5lggStM0IaeqkLizxKYfDm5jJzozdQY+722JnI+MwIvLZD24UZSCCsXOZnc2JRmtzkdmAn",
-	"2wbrvt6JGE8c70ulnnI5d5eO+UXIxB0TTo8G2lkYpi6ExhlwO+G2hvtK8pkdK138SXzQo/m0MKaQ50l1",
-	"XSbhElQaLgT1WuTsTHAtNM1KY9DffPPN9tHMjoW00EuxyLCkX2DplK4KLlmKNCpl3FpdnM2sYJ2TR8fs",
-	"08/u9burpYgmK0pTN9UqE8bAIXwobWHnH3IGvxFlue24lEJOZ5a4gDMt+Gvk9mel8LykO46HbgZMimTR",
-	"MDi2A6lGIyFzOKLIflQUfFYKd22+kmY2nSptRf5U5AV/ifPxoVkKPBJ3DDumVrehF3A4gAop2ZBiGM8y",
-	"MbWmhzytawO6cITPgdg8hmnDvud5AWV4+UJDBbYQZutgxEsjmj2pSjM71sKMVZmbQ5xJ7EMpRhb4QmZR",
-	"6oIuCXleSIFS1YjPSss6ZkzMXlnS1a8kfjgRdqxy3IrTqB8/bJ3x7PUw42U2LNXl0KpSaOjBcEqMnbjK",
-	"ypkpLsRTL+zS/oXdwe3WwVauZnBRJCCV0Qe7/X7SJhsTbwpLXrU5KeRwyo0ZjjTPaBp+WFn32jV/mJGM",
-	"1USZTOTc2CIr7HzIy+n42t14hB+9TYjDgUXfsBzwekM1Go6KTUtOuMy5VbpF/D8eC+AgL0H4ZyNelDNN",
-	"/9JWuxA6LzJ7iD+UHQttGNeC8fyiMErPUW6zYmKuFQehnWd8Iqg/V4+p0G41v1xrDuLmTBbfz4R7D6vl",
-	"BiDKjUd9NdTm/W4F2MqluBClcToK+vReXG5vUVFEBfXQfD/jmi7Kd9j/ambLQuhhptRrM8zf22B9O8bO",
-	"UB/xJ/H+2gJ9yobrfSF0MXI3xiIlqG/7N7998Aak7qgIMX9c56zz+PjrnePjr7tswucMaCvj57yQIHxY",
-	"M5BSTQqQUFBm77EHjgrv9RPGgRNir07ZwxdH7PSb7c/3P2VPkQqzz/v9/oOBzHhZnLkbJW6ejljJz5TG",
-	"o3rHOPLNjLAGGmbq0inP3sOMvw1P1Nlfi8zChFZX0wtVFtl8w5vtIUql4VKDe2mkdCYSf2+Z6sba+Ipa",
-	"HOq7XzibXCxrlF5+TaxRuOWSWKNU6xWxRrnaBbE5Pa9R8BZyvVYPasR6nRI10nsjCrsOJd2gVIMurlGy",
-	"TuXWKLAJjQMel+hcWSpQhoGU3ErxDOvkERFbTr6Qlby2m29jyeeP8UI1tkbbhl16bpYfx2QlsVhNCJr7",
-	"pL4TF89hbc3al35xG8UHbOUafttGhf32aNptTHEusSKQHXCCe1sr74B+7158B/T6/f5uyx47krycW3Et",
-	"ta/Ta9LYr2/GSLa+n3FpryviOvMVfvsWucNry7yCb5q7EPvnyrdOc9zQhiKcZJxKgy3D6y8DOwHirxYg",
-	"7IJIDEKw6bFvnAph8XPrzSIDWZ1PqMPwybQUhmVc6zlLCzMMlo2UnQk0HKTVI1KckdK7gKvWWpE7yXAg",
-	"/XcMWRF2NLzaORoWJjA6ULYaVKZkJqTFb2WCveGuP050eHwa1VkWwtRsGZeFzNUl60zhLEnr1QieF1La",
-	"3GETwSV7fMp8LYeeTRjIT/s//81/2t27x36bsExNJkqyx8cvtp+esimeY+ApRlpN2ERMlJ53cbwlPz8X",
-	"NPugrxmLMieVM60F2FPI6FIYdvXf/0Of/fN/ZnlRzpAy/vN/ZiPi8VQ5mwj2zz/64fKJmkkLD3I9Z56O",
-	"AHNjQ92FPB9I2GkJ06Cjdt34fsZL2P2uHzVej2eZFnlh3QxrcT4r4R0WPH3+AsYtBhLNdIeMV3WxqdBG",
-	"SWfy8LYALcystMQt1s9pLrJiwkuzSFFOoKtgFEcF6oTLOfMfozpV8BwWriI7lpE62fRiKrPbzmhGN3Mu",
-	"rMBZG6LycYn0s0o68Kdm6E/IZpSnMEPakcNxcT5eznPE3PN1AktVJ1xBt1KlX2N9LTf2lf/yVCAxC9vw",
-	"xjNc1bA+xU22or0xdHtjcZ95eeku61yOhWSp32UpHEWyS3frWyq+t3Zb/C7a6PksL+zDC7EGNa8fkEpC",
-	"aOhHQRt6yQ3LlRQJE73zHkv1TPYyLbgVeZqwFKltj0ht9ZtPp1pdxE+0gG6KPO0tuiUk0IM2yz5w255y",
-	"kvUPFbQcKmqvp7Hw3IptW0xE27e5sLwo25nIKde2yGYl1yZhhczKGSp3uTezarQvcKNkr9XLIr6Gud3y",
-	"A0y2Ag/mWv922To+UecbrqK48E5Ba4kz0W5ZkGcaI3A1t/X1mOPtYZZsHroggDDjRpe50zUfONUyMnL+",
-	"Ao6MdeEezHRhhS44XXbT2VlZGDCTnc+KHAq36BDq98pA1i8Wp2GA+wXUy2yqRSZygVXR4rKzecttM5DB",
-	"Z6oU3Ajn0+NnemF3TQrpFX6L0iKKkhsuLyzhzIp8caYfwecMCQuyGFA5y9SszJkzLvqyOFuSpSAQiByJ",
-	"D7aFM5PSlkzJNn05nkdb+0ypUnBZPzYLYw6Ud/FARToR3ArQI66dO9Ehk7OybI5gzGGrSPQWucS/bRhI",
-	"O9sPtZA5l5RDq4X+5nYVdix0ZERwTl/IGlCPgGrnoq4lRg3xZWGEG1isJl6cvHVEhpqegVYqmu2oMrLH",
-	"tw5Fi2B+olNnK9MJsFV4nFopqIFzA2LoknVEpzf/DSzNRHCDZxZZy3gp33nB2uWZqod+x4VpSqpTUhdA",
-	"3VStJLvVvLd5DMJLfxVFtGuKasIDllYiP9x5JPOnyUCmkbwPb5qiPjwL0jrQqUJJeBbkc6xEC3hzIQL3",
-	"NyQ7bMLSIK5jKZCJZrwcgsgOD5xcbrCWiZLKKllk8CbXxcimPRY9ZZ0wZ0AE3YbpMrcIhuQokq+sAsIC",
-	"+yaz5ZyFSsjMjhKQ0q9R/OPyXPR8g+h24FeJccsKeS6MPcAiUlwGF1FTqqmoCWcoLqFw8CBYZdFxqXJZ",
-	"hLeVDLfXZxNlLAMSL+1Aeq6E2jBJ5QD1jTD2HERRYlNIZGUdI8RApn/x8CXbudjdsVrI3KTdHntcO+ps",
-	"JkthTEw6ysKgBptxM5BhUhN3FqFwMHLiURkBTwHMjWS7fdbo50Cip03i26EKqqXqIFGnp17SYw2CCc5b",
-	"aRCuh4Uc5tyK1JPi+mJUlFjPpLNzoxnAV8AmHG/l0hxGo75jWCqupnBcwz41qSOjhR3Ieper/aV0mMsE",
-	"e400F+bQKf/lbLJErVZXqLWo0mJlmDteW8lWrP1acrZiTRh+FZ2sSuGFPfF7fyvZwk1ORKo+1Uib5IXQ",
-	"50IiJQLGozAgEk61GhWliIiSI8fJ1tU2jH37gmtcBZgEJFNPwRXYTQQ98LOBv57w7PXz0aPC+gdfLs4K",
-	"Pv+CZ6+PazODj09Ow+zQbzdFp25UD90E4cvH0Sy5r2mqTmim8Nnzarqov9Gc4YMHbuLwh2/HPJYPaO7w",
-	"8XFtAvHRCz+LL/wkksdmpbtpo+benNVQ8jiNRkVAQBC8RsMIQm343zUSJniSFshrtlyul2rbFKA3ycJX",
-	"pOIEWoc78YKXJmH93j0gvv3e/fv3r9V+3r9/v6b/vNfeK6tV+QSuUrOhHvB0LC7HXCPvDpWQb5Vhncen",
-	"z9lnn3/W397repYgeKGC91lZSHS7bnIAbYIpqizWtBa4EqW6XLMArr9Y8+NLriUoCDbokC+ybo8aPI/r",
-	"Xr2eRkdqo05qk9bK59BSnczKVk6nugqBeeyEn8IyXvYSdlwWsseOx2LSY3ufsc7u/c93u2z//t3uAUt3",
-	"t/dMOkCunTSNZ2KuZM5++oc9uLU7rt/dQ/j0rknR3yd8c5edPjhk6R5UwuylAkZBGpHNgPb4z8K1jzXi",
-	"fjtk6cn2PpVhUZEEqh9IfqYuBPsdfu8ds5BtR//xS/bz3/39HrW8v71rUjZSM80WWx7I0PRu3PRu/ypl",
-	"VshaEeeOhF+jTliNAg9Tv9RgyraSLZiOrWRrj37BcLaSLegPvOtfrXk5wKLuUg3w113/1154drLv/9rf",
-	"Dd9B/bAzlgRYPJ/y72cCnMKNsIyiIlgHjvGn+zNdHe0pUA557jVZPljl3u7eWsErw+1vf/dv2mQSDCna",
-	"1ELh1f+kfmLfBJZGcOikqUvI7mMOm7wEXjlTYjQqskJIi4x0nTkwKYnMmbrguuAyEyk6CYnJ1M4T4pPp",
-	"RBtSWUkBtUMz+B2QvYSlTopENiwdgfCduHrRRwlF8YEEUbxFrc0zIhNDbltlwIqDA+nZf12/Mlbpx3hl",
-	"FFt4l0Vqn5WyrP8OyuCYNjO3t5na45VZHPhjySYqF+W2+H5GJl+lc6EPGNw4XLM/nvUTdrb7beIeDJUu",
-	"zgvJ/ojPvp/xXHOQbN13CTvb+/aQSSW3XQVYuwH+On0Kfzp9ScexyZKlUkn6thfCS4b4Nu3WnMfW8xFw",
-	"WqR7bROxnJ04bmEiYDuckYSEZg2vEAjMxVqm7mSr2vRt7fp3ICPo4so3HK9awsxP/9j5q//7f/+bb/6q",
-	"+/P/5//86f8Aq9Elzl70Ha1cbcpube5WTyypt1cfLBdbw4OdEQ2WVm10xvJRi1HKsc8sF+dagFlxxEZa",
-	"iFxNEibhtmLTSHUTWZnIS3Z4IbRpZXxfRgZIOBn0PRGoIAVSaJz16n78fme31+/121X3zjNLyesO9MPw",
-	"4dtkC2yVpk2VmVkwiKD3L3WEuudUb1J5zdvabpiPCvuo5OdtlGQs+EUhjCWh8rqKUOA6HXONirkiXy8c",
-	"L4mDIVuVpsGhp2EzKowtZGbp/BovnIxIIlltbiwDL79yQPQVnAaU31u7R6+GoBpfvqnoI+Y/aj8fwCXU",
-	"ur7b1nUkr9f1HAkvfC3bjo+736sJYx3cpDk6AwivGJlJ1ItcO5mBnK8R/3khnoWvQXuritZLivwEgzbF",
-	"sSSJnymlme9wws61mk0hjmPuKHkh6TI3RXW9re+UDH18Ad1qOxA157FmrATEAIq8TqDhErFCTwpJFKUz",
-	"I4HauV7VrtjuDZX2qD+8blwn+NHbSE9j8hWkNUx9Li4K6rrpzHeuuonn3P/lv16y3zPJLnHczGS8FDcd",
-	"AJqVrh0BfeW+R8WQwtuBl+Xz0dbBH9ehNt822eAXWmDQs5KMSxZodTiqNZcZMvZq4bYh2QjIZ2+4Pr1r",
-	"cMotYAR+8umDJRwCmn4X9va73vvGcjtb75Sc0qeRB1Z9GK+OXz1lmapkuyXOQ0GLtEBbPas0XIvofe2+",
-	"DsTP3YTXlnOfgTICN/Mw4zIvcm7FUtIUvgBFfKa0cLrylM+sSoOHEUo0V0DbsWI0kZfFa8E6KAjBriMV",
-	"NkxRxEksKdxdm4wRNTr2vWyjZX6soDOU7YrAL9Wla5xCPPCQ547zkbDTysIIdBAyswn8Iz1yRhrRmXa+",
-	"KIxq/TP8TSiyeJBf+vh4wWbQJ9SgKymYA7EgvxJaHjrFGOqFN1zcmyFq2kV+671ybWdjpYwwHmXBVAJ3",
-	"wnhpVGVbcEwD7QEuUSMTQBqcAbHaiE5cPxO0H/PGqMJwb31cUVe5eU0XGzb+J6HVcMxlXrpFXtxc8Emd",
-	"GBgKzXQei+xSaNCrTK3zb9Aqn2VwjAo5KmRhhd+fh6Ra8PMiBeNaGXG99wnhSRABD4zeIluX1DE7vOzv",
-	"aJ9ny+Jd3T77bTTGc/ttZ7I5jQ3xfvE2qYmf9esexam6bQcaCBajSF4OrFlQSwSm2TMcFX0Nt0ZS07nU",
-	"5MRIJbIgh7UqYRElRz5SOrtes9XQ+yxxsZgoMoHiJkURan059IybotWHZ+78H7xPbRXRUkiw8Oamlfjd",
-	"SD/ktXzX38yzyYTrOUmf00ILs1xUL0CA4hdEkTIBbHTNYumMJQwRYmqGCiXF0glcwvNFUh03dhi7va9P",
-	"l76OS7WTppKjH0ZcP+MWSIu/nrhN664Y7eaWxr5sGh9wRfzuSMiTLZrxtmFGa7903z8pzKYuijfeUBso",
-	"HBtba0FbwM1wovS1W/RLbp4qUhJEoETXlXomrmwEILSwDGarXl3Un3Wm/FksxG6gRkcvPh7rP4kU8Dw3",
-	"BxF8Dmk/O20KvG7iLCeqJFAONbOZmggSPYK6cDSTmYPO+pd/Qg4TohBJJhlIYWwxcdg9MhsrbZJgywmW",
-	"dOYs6ZVfR80HBTTp3jPq+OtKI5q93vbeASKvX9cgKM7BDpwLPZCpq59cjMHjOe2xowpVyljNUVqEqTLe",
-	"AZ4UyqY3kC+0gAsF2QC874lBcizyzFDXCjByQ0+m4XNU2w5kJyWylYLLkMyH+CUMPO22GghoohYJI2qy",
-	"wGkS9Epq5GY0jk1gHXwLw6cYDof/AN/BxIOEYET3wGksyGvjr2f5OSk/l7tFLqpa0b+T6OPC1/COh3Pf",
-	"oudS58OrFUhzcGPlml8iPABnpTpvLC+/Kky7p57bpFC5t9R5/42cOIKyxL9CH4feGc0UEjxO9aLNLgbL",
-	"Gzqj3Q8rZmulKOs249r0zXlIBOVPVfmn+0trr7b6mtK3HQvLN/l2uEL56I7vcBMVUIN4Nue7Wtl489W2",
-	"mh9Eo4NJOFB+41Vr0DZfS2kxrcBmdPi5FAv6wgqKLy/4uVQGyAxEylQ/4QBUXEBhG+BNrCMVKfuVBmlL",
-	"K0WUrEYUUU2EH5DXTB8/8W5TpMVZhbhBhLXVRhUdRRgUthtIozPd3kzpljV9gNYybGHwYkE4Su2Frm3Y",
-	"a27bfXaJXt6w6mCmaDUiaH5+0z4HFzhcy/bY2t1+/6cfO41FRWtUbaq7O7WfN1aZklh34/GQgL3mukeh",
-	"rMO45XYst3LOfAFDuGhY4IYjJZF4mb69qY1GDdUh69N59lvtNpyraW81z000laGrYRNHy7RkDqONuXC6",
-	"kgUC0boPowO1lKCeBqVuU92P8RyInthjR5V7MfpbTAmxaUjq+fQwRPdQ7KikJfWXf/3rrWTLO+litym2",
-	"aV0PzqrPL6jWE19p9Oqoqj96ehKaCoN3EsumIV8155Fb8Aip2czXq2/Ei1Lkw8oxZDH6q7IO4EfOGFyQ",
-	"386UGxP7rEd+xN3N2NBbs+ZuZkm9TVPoNcAP19PMTY08N7ejLBpCbmjJcIrXNbW8H04zGqsgW7SI9X2/",
-	"QqvYRvEeuIDtNo8BesNGGG2IILaFyB1CTxAWWScECfzekUPy1YyiwbuHbJfuGNLH924MwbOGW/TD2INk",
-	"A574Ottmr8VlzoWZvlPg6GqrvmfOydeQeuJvalOjShuQ6+WcnxaEGSjaJOQld3xVpm2DLTgFgFw1pGhX",
-	"aORa3Wf1acurmml7LTj3eARx+UiH71ps9DWKum0/SmHjrSeRLVmS9YPwa2u1KN/5neNuPGwgYbvb4Gib",
-	"t7p9HAbsg8WSzeO7LAy/Pbh8cdusnMAIYHyDKawO0loKjMZy1fUjbkzLY26b23g9ZfxLcWVblPBkGBGk",
-	"V3SYabqQrxm37EzZMRMSIC39LFZGT4AlMhSnBg768Lfz7+JauKKBq6+dpdvpr3eOgtaihppKk8bBalt7",
-	"71fXEkIA949z4uNNFz4T+/CxNEedgnQueEO6RNMDCiHAZwzhQdlEoeaWSzbm5agCBbC89D46Llyv7tWX",
-	"QqzBSFwOw+Ezw5HSQ7OXQrzCjvlujwzmaFUnNedAUsvYbQhDpvC8MHnYjXrcG0IqhRbSuot/6yC3kq3W",
-	"bq0pRLjpf+CqRpXuN75i9/KRuDwJ1T9S+nQPxQZvoFgaA80ZWBowNQLpiQxzsfxwJZJFEF+SowHP21Wo",
-	"Xwpe2vGGNKFiLP3sqde0EfP5mlND7T7/w5bvwgkVbu5y11Tb5n58ul6IfnPnE2JOhIm0HSntHFRQHNK6",
-	"Eg5okX+pPh/Cx2uqN1ZE7K8Gg1kPhGah0pVoMAt1ropw1yKDcOL5BtVtqvoJMfTXuFEsjLymGmkuTKPr",
-	"1ZxEUx5FrbsVCt1p3ZIVK9EW0eiQUhBfy4sriXdJSxylSnwwgHY7tRGp8+n+WoE63zYTzvSTT+++bQ3d",
-	"eSz/moCP1gOKbhqwKli2tW6/mN36tgWz7DGY/TQ7Pv4acEKodkihQZYrF+Qf2f+dCIV5k4jTcoXIqarI",
-	"b6trEeHIGWL7p/TExRl9nw3d76SCIXN3oJ7JLurng5rkDgKn4p7oOaCmWkaY9Xp8Eoq8hVuD5qht77nb",
-	"PKQwEKURZGntBAYIjQoll69Nt6ZV48YLxK3WstcFpbvw30fRC/FJLLILOITuv2dbSe1DbLeS7P1PmsWt",
-	"ZCtMbmsXnNVjQ9jfVfLuVBEPf70G6B1X7boTUHnmITAhwd3E1xPlKiIdAUQh23BqcF+hgLym2LzAYbo5",
-	"cGuMh6mV7AVqVlnPbyZtRNRkfZHtGmcrQgKkCfKuUawgZhKixi6bUth6GoZ6ZNdKDVv15Vu/pc0GJmE/",
-	"padYsolUfo1Q1VjTSjXm+9G+oBRttiFvVQ00xKtVjuOxwYkiPdMzQiGsMI4Slpbq0tFTuITTEInZYruk",
-	"0u1cyfLo72uVrHj5q6mQy5KvuZEVhrkuuBjls3nUfaiAUVRz53c//93/r4v52YKMucyBBPmDRVeeYBLO",
-	"StjM0CrlSeFmPplaZSHpxcJ0xvPo53BxqoKSZB0k52UR8hsasjAI3gXGe42XX8+2DfmEW0Hb/0Y8ylpR",
-	"uB44lJuAl3RYCVRaZKK4EPnNiMWN6FoeaZFXlQra5rWMJE11V3R7rXlntenoK7pS1di6kFWA3ma05eU4",
-	"1jV45W3JNYLhGKixTeHQIp/dwOnA+A7X+wQW31idF13XBLHkPuBl6cPG/PubIFY3zb7Uq9ZZvglOyAOP",
-	"f+qd4qQNLqMOMySh6N9m4IzBxF5Ty9JMF7bIeDlEa0UKfLvfD91VsGONJfK1ZKtBYgDAZHf38/2723vM",
-	"l/EpC0cOrMo2AWSuhtlN3VVqg7tJd/xcJGx+414sg8SEWAY7FnOKV/CTi0LH5XgOM95bgrDZRL1dPirH",
-	"CTMqBN2k8cGs3hTvr1QtAsvj4y/ZV3ssdI72X8Lu9u7+9OO//u3O6Y0b+35pY207PmG7/Xdq0BTnE97O",
-	"SISd8a9/i+cqKJ/wSNWjbFKsZ4hO3nC/r4kCEJVaXzo5hUJfYJl2z/Z//VsX3iRB3nZBRd1mWJCNQMtk",
-	"vjzMrHM5LrIx1ejOCMV/ngKu/yLnkG/RMi6cx2QZ3Vjc5CsxBp+o86IVkYpARu8Y8FF1uUEizYtXu3id",
-	"y0qVy9PggrARG+MhDa/FjW2mSNkYvtcZuEmPHBtrF4aCaRyGRpSjYRVE224Ehn0A52QhvgzrMAwq2aZK",
-	"KHYOUH62xVwYAjoqYPOMuu1srONANgDXpQLt8CWxbLeOV+L1aBTRPCKP6YpsgEMR17pg125EnkEL58WF",
-	"kEvwIBoIgEvXDKWW1HvspAnlqmyu3yQkgQs1OkVdDLXqFUT+WasqB/JcIKEY8nMxHKtZm3P8s8BIOJqS",
-	"K+cwC+O6KfDsZqgGDoR0YQDeCY16BtCCI1VXX9eU5+s6Gt3EmSYqNVTTtWJzQunn7vslAK+R6028NNcF",
-	"IfpeNAL9wtlNYiK3fC7bt0kj2I8IXhuFJ+p7gwgn2u7rkxhq6Frsbl/t8r7eUJt2gwuD5Ov16HqMxzzV",
-	"hcyKKXcWWZeInoN6EnnQCc+F895EEng2r7yBErTOe8dO67WZIfsPDu6AtdwIWoxmRhhmZtm48g1FC/H+",
-	"3l63x06FZYUNVEuLRSxygBl3FxBQTpe4wiogKmDsv/3rpqa+u8Ylon4VrcfBxQrHb5MleQ76vfv3ei33",
-	"yvWeC2vdH5Wd2oHMoBZWzyRxelxCiNm2Gm1j4PgCaO1AUrbHThpcR13qmBiRFpeVPOUQcrdT3VTdBixt",
-	"BDT97vcPyFqQ1d657cU+P368FJTm9c2gZyaJ4hY89j7/7PP9azNA3ugyW19vtOKWW7YPwI4EehuaH6QS",
-	"/JLDcXfHFojAmYjBTry2vk4JljCAv9AN6Qhm+zXZdhsGytFK7v26NXI8kzY4ZXP2e3bWZ79jZ7s//Xh1",
-	"yNIafI97716FuMZ0IOvl4N+9n368+ukfCQX28/1PP93egyPzbAFErwMqO3km9PnPf/OfnnINTrO5TYhZ",
-	"x9hDkXcTlIkomkkO5EIQ3wFL96cldS9nvwO9EESl5N2dzi78vNrJut+ddZMawMxA/pEn7CxhWcLybw9Z",
-	"em+NKr47T1hULGHn3x5CDvXC1DQwjFtEfkiYw9R2UA4NZVHGBrN+/65gfcKLLOSoJEkyYWe1dw4L3bn1",
-	"gimVjNHuKuP0ccZypgs4BslAumeC5bCvy0KeHzK0iOpC+Ny3Z9BxKc4pjIsSylMFVPNA5sVohK7DmAKp",
-	"m7Dzer/AQjARFgC9z9nv2a6fif0XTxBwfKouhdtY/Kcfr747c/MHEy6upkPD7YymI3zU2cWpF991fv67",
-	"vz/76cerLsQPLyk1VKOREZYKz2ELLqnBL9u8/23rRiRuhkKG/XEyiOQIFvd0d2f+3V6aBH8xjMal0QHy",
-	"+ERw2XD5ouq3kq3aGdpKtsLBAXjXKZzfe/hfrIzC66MBLjxwI17TEwpP/BPflejXc98dfPZV1Cd88EjN",
-	"9Isn4VdxIapfL1xH8cfDq+lp3NnFh89df98mW1GI+6JIyA1halJ4exph8yMS1KgordAm8bgylYdapPql",
-	"OPOyMNYlD2GjmcYbAj6kBVqNS7sAR70RTu1zTJzeNrxvxopp7s1z3qJ9iO464e6jewtuKgTKwWwp6b9N",
-	"Gz46u3uf38BJ59+iymh377N2ndELZEw3xWS4QchPXmCu/yWWVf/2JlFEMAeTqV0SKT6aleVwqVxdquz1",
-	"sj6VXmW3UEqr8roA7pWiGdUc983XuTio0MdoCq8NFaFVvYEsOhVquklkObZz7Xhdrct7ejNJtLa00UHZ",
-	"c/JPdFBaFt4t7kqcTPzIuSoC5k2zoXuf1hvqJ+tslqCyAp7N2C0PFIjU9Xu+7QIMNUoVk0IWxhJ1WSJa",
-	"ODlvf5XQ15ZrfoNdGSagdQ3f0T/nz9PpZZWrSzwjlVfqzVyWbgdiaVUCCvKkqaNGgzy9Lio0CrbrRxDS",
-	"9zeKI6SimwcNUia6m+yUEyzZps5fEtPYBuEzbHgzYNHGRDQH11Bm+hFcA/mz0PGNT+Iq03gdt4HUFKg9",
-	"qccfLmR1Q2nFMWYBacIZL7ztGp5cKo/dW4PvAQ3M5Kw4n6mZGUL59KaIsrHzyxo7ewlWdYqeWYRNArIB",
-	"OmRVP8WV1XyqSp8ok74uFSX08r++h1deBsO/FY4NtB5VzfVhD2THJbqIcQVbpwzMNDXZ9ABNOAMZpYrq",
-	"JiydSechNfQuaCDPnCKauXdecnuvYlBdVmapSFPjxSKp7NDbu2EZUgzMYSlRW9qQXoW2aYT2wmdF5E24",
-	"UsPkv4vKRMgzre4OlTseWLzUmeWFDPCg6agQZSl0O/jnRHA53DAUwbvvtJmk4BuwpIZooQhDkhPCQn49",
-	"tnYjwdWiGRo4jivE2aq0pvhtq6tl4s6+P04Rfh4ccQ/ZdRvoFEXeAk3Rnq8LFrlCnAyT2lyTiAos7ojV",
-	"NNWxDZvR1D8nh7vVbnYvtJhyWoRTK6Y3yBxfFt/PVEiJPuVaSEtGnNkUjCO8lok8YYJnY/cDyNzkSYV8",
-	"ZFUpNOLH/fQPEG6QWU7gWy2ARK7d4eQ2nfl9pVaVruINK8Ch3m6fqMob9qixIaJJWxhs1PlGo+37Rp2V",
-	"YtIC0/LomN3fv/cZm9IXjBxoTK8lk3u7fxolqkYHIa08MJbjLFAUIb0RCaDtXgtLsMofKURO4GWRswK0",
-	"8W43qtGIrBQM7gGXc59S5q4LxgZDfQSFW687WYFQLfLpblRsyu24dTjuA8eOL60AIlf/atuJa9uPgU+x",
-	"isESOz+akBOdcXav31+aMXZm2tv58uXLF4w+QKj0WiD6vVpyuv1+a/YFW9i2PGWnY6UtM4R9EyiJ2z9Q",
-	"S2tX6cGi99Wrk8deDzf37r9xZf7On2l5gLzOayGmQh+4bw7cDkl7W3VFwHVRMPjWjzECCFnhQVbbOAc/",
-	"rHlAXvpkwIVlZ1rw1+2wvRj3LXR7+caWP2Cc/eXp82fsBRVihbSKEDVVPk9YuoMomDtkm5D4j3C/MqDl",
-	"7lE6kHA2j0+/Ru4/pS8K9/bAFecT4T53hoqA60eM5HXRRjSu62a2wkfcUGC6aMdMO/6adX7bbWWe2vDu",
-	"MADYfWznU/TxlRHv52P3LbuqhCtds2oaNiq5vaFcdHWTDIVXW4kff9usfuXyqOtTYW/ilh97U/ic7Bpp",
-	"CQGsIgb1oSPKUlR5dW3lNyb0RZFBcKUz9bbE+5AoV67BOM1KG8aEN4dHpr1B2cIMQdE70+IGhUE3uCYy",
-	"ZrPw25aFOvE1bYIOHAubSbWRHcqFowce6IKMbCLHECSExg9CRodTdGictCeCqrQC8yZ3GyoFjRveY1vX",
-	"V/QdgrRuPxCp7WBQniJhNoUCAotlizICqMP2pS6sSImO4gNwYknZ5bgoiUrk3PIzbnDeOE3/2RzN6j5e",
-	"nXWwEjhcBkAv7vXvutQfJ2Do3T4Cka/pAVM17kQubHgDIyVMxjeuvP/9HKuoYHPMMlaG514uNqwzVtaP",
-	"y3RZyc+3nYiA8ck5qS/OFbPKB5yMinNnq9wwl5LD1qgW8lpQ3UVwi01wLUJDq/EsyDNkyZ6L02BveMdx",
-	"rQuichvAO2+oFCaHAyGzhj5/E3OQ54zqWwVZlWmTVSH+dgkLXceubeF7lW591VgW6lD4vlHzOghcxJpm",
-	"vFzi6DuTmAyY0k6s6OvyL5arq+slFxqLO1dfviTsmPadWApuUKffRs3A8oW+nLyMyZfDno89uw6B0kFd",
-	"pGpUGCBsWWGidP/AJxDqUBWCQwZWny+hitE8ZCmQu7Eo83Qg/U1TsVce6zNxNSRsJkeFpYAlpZmZTYU2",
-	"InfhUXwg12q254fhIapcWlEMYKkT22hucDP5wW8lW77naxMUbPFFrUL38CSu1z37JlSPK9igfpsd00IO",
-	"Z2aFTx8RayTUsJ5SXS6JMObnQyMyJfMlvpQjrmlDsDMxLkLKgAIER4xA8FGW3FgKLKhHG83ka6kulwAZ",
-	"r1TDVNhdi2BchWXnwpIpBEfamUnEz4AZT+DeoihPkqdm0kHshzs7ofREvLuEduHatLjZONgFuPq2tz03",
-	"sI1X9kyXjoXbrYnpDhRmXbQ433bil7j9+JPt4Wsf7bihWEDxbdzRb1hOac0Bu/rv/6EPM4nKVjiBRXR6",
-	"XT7/boxzCX/Hukb2zz+6AzmQfKJm0sKTXM/ZSHPnm0dpACzlBasuEeCDof6EaTKlJD7WtVwA1hjIqgx8",
-	"1IhFNEmNbw5csk948fiUNmpIPuHJ1EB6UBtvZgvNgPRvHMx7AzBhQc7iWaZFXlh8n0BnQaWKkKIyR5/2",
-	"TKFPljbgwxSN0Tm4E2k2AZ0QxI/2FNZ2WeqHm5m3KShwuBRoltYOESRHIWhtPQitZiTrGqWCmaXFZwka",
-	"vzGPs9SRSU1j5vKf//NWsvXPP7Y6jCzH4vVHclNFgPMV8QGTzrqtpmuxOEG0X9863yISN2sN23+jZdPB",
-	"Zr7OxxVSyDpfz8r2hbPiqn05lq7TVX/NNq/6w/WcFK76W9XX1R5tnqu2UxQmLay7nxc3NDf0xSVpC6CN",
-	"NsM1jg6xX80ioGrlaRkQUjsuECC4PZMJk5QPmdKaurLEs6AJbBz+F92Q24vvFpbkJDbUNTHrKwuvR2d6",
-	"p4y/YYo2c3PCTs5K+/BCSHuLbkubeHZmvJVFTPVM9sj1EbwjnAdWj+foZ0FJQxyof/gdM+Ep6kfoeYgT",
-	"a7fjrwHocT20w4Yy8ALmGY7UJR2yYpiNQdu2Po8fVvE4VBQ9RAns2FeJiX/ERQG+JsbLZusCj0US3ZKM",
-	"mvDOyT5OlYdQd26EaW+dzHor0aVJggo9X7+/noC5dQrLXEj76X588u/3+5/t3r+/d2//s/3+/fu71/lc",
-	"bAirj3t5uMTZxYjvV7P0qDoVgC1USJhUTDEKyjtixMRFE1jonYe33s0CHXfpAx3aGx3t5pIt7L4Y2jus",
-	"TzxNEYL/Sh+72jlecpPMSvtIiPwDZCbEhdiU0yFK/F4SE66OxWiNuYAdRUdYVfvu+nS0buQ3zWXY5Pk2",
-	"XCqnOo+jKT691kccLUyNYrGxeslIsTFfun0sPvJ5Q+HXhTTmLuthwqYhEUImmtoq+LQNB2kNyA5XGFI2",
-	"InpH6w25UfCH6/F6qfAf+K9XqFKe1TKc1pEprrlJGssV+haRnGvSBzS6Gbv0k+YxpAZa+66GCo9CYfp9",
-	"4qp4Wz24iXv9bUz+u2LQR4j4VjE3S40wbo8mCymaQFua9pavVeuqzErxdaFuZuNwV4hZkVPSgD8QpDJ1",
-	"6qViIjbkyP1lvyit4hgWfZCgq4EI727vGXbJNWjhE4K88a+oAlL1tGtLvfx5TXSF1aqEedwEITvIdziI",
-	"UC6JJrV9ueTGKOt6JuF+ItNEG2m7SW6rjSCMHARFYW8v+/X1KD8EcXBZG/magtRmmZBPZhIjLto2qW9w",
-	"SfiIhXsIytT666dLxlA9f01ENjMX65LHGeRLn3ALtrytpPp9fPo1ksebZvFa38O28hjftMwGeb/U0jDS",
-	"d7juNo+TOplFAVItlmzyvfagGktI5gL4hgkbA9Y1byK7kSvH+gbmGkrIWsM6dSWuDVfcLC1YLYVXWMFw",
-	"Xlrxg+LuV+uTVAm/V/PCM+kl+g+ZS31RzYbv2FToChw8eXdCs+5hblu19ScQW/8AOOLvObPeprFwq2F2",
-	"F1LWLZm9myJH3eB6/pAEO6a/q0qFcP93Ia4BE6upm12gdDDZawTHQs3u01D3OtT6GF0qHauznGzfMeGl",
-	"ITjYCc/FQKLhGAO9di52d/wn26F8t8cego9mSCbAQ913TGW3RKN4SGTB0tAWBMTBDkkPnDLLl6aos8az",
-	"whLfgaEqIiezNmjCCskIU3ha6DnjdiDTaD+mZLMNxZybBpRwUSpYUORkNMU+YixdlYN0JkthzCKAYWEr",
-	"vMJ66NsGmzlKd7ZGYHfjdlwk3EJaPY8JN44eI3/XJuH+Om3Zx/c2i6QOV+2Ki7Ua0FKSFEJ83/ONuGkw",
-	"cRz+2Cr9baAoXhC9nAp0zfDgirO7PbtOvjQt6e4yjnWdhFP5EkV/ZD8Ls79GfdczfG1g89HoVk7nO+Y4",
-	"er/o/bmeD70TS0vuWD0HWm2FjjxdrHcgwRSr4Aaz7VLtIezzTZPCrhW9Rv44tx4UR9UGg/jKowbf3CAK",
-	"892zLSXLUoNIXobb904VNg/XKQZAOJNx8HtCvRS8TUOP0raslO6mQkmbUog1Ggsqpjj9z03CTYPthryr",
-	"WoKx8DnY6Q26K/kY0EKytFYU1zDtYpwHpRWIIkjTeLXTQ0qsqTSTorBjUtXd0rZa7NN6++pdEl0ssHg3",
-	"sCEgJ1f47Gym3ceAWLaQm4yuF3Sl1Dx7LSywSHMPvlj3dDWs8/j4653j469ZCC1wDNj9/s9/8592d/vs",
-	"twn4ne14zrYK0Oke0t7kkKgKfWZN4nk86g0zhTd2oONmAIBEtrEgsyf4qlY4YqTGPqzyp+EbqQZSTQVo",
-	"U2sOwui92yGAfFjEUliRdtF7rlTYlJIiqbVkleqxI+wydnUgd/uuLYpV4qEsfMO14yAB7j5Tk4mSbIq0",
-	"NyOV7sMXR2yv3+99vo0KNTqkpksML8c4vmzMIiQHINOODsBCQXSnn9u0zf3Oj6tF0aSqvcEuCzTUA4wt",
-	"IpbNJAxD5H4X0AxgllbglL0/RqsCutpxazNOjRSCNRZzb0O0njDiWk/azliNXbtZGtC2rGqVrUNIL6W8",
-	"Hz32qjxB1/u5NEbUivNQ940/5xcCvezRNZcgPxCF4cYwLTfBl4udbda7eImjbr1zPZpsM3QzQ0RCrSa9",
-	"1Zzvy0VQnHdKyr8m07wEr+Yl+r2HjGD4FfIGL56fvkSpHds1Oz8U+dud6kuTJgHZxSO9dKp1z9SszNE5",
-	"/Uy4TESIn7yIAwO4NWPBKHLEwWvntbTUhyxtQHGEMIj5DRFj2sznjjgWOfr/k7YB4XJGQnguqLhlR5nW",
-	"1LkryZ5LQXx7IDe3jlJzXfLKOJ7lfThs0YG5vlwca3B70uOt+3atpd7zjN+JyBQZMRZRfW6SSyh2LbzG",
-	"CEnr4Lz5FOUKpEX2QTRYy/rmSc811xt8dfzqKQZ6e6Wku8DumAY5pqgLSvWT1l6he2htelz+x4ByhVxY",
-	"Ia93XLqZ31ldexVrFNYDJtoE8qh54mMQpLqTXeNktqz+2ukuYjbpz1HrtupQtiI9bqRoo9bNzewkm5oU",
-	"mnks3xus5WmmpqIWxDyT5qAK/8apOYANHkxxBy7Nh4MyXdPgjw2dzKTxoeH0gBo4ofrxEVrDzIlvA58d",
-	"UUPQ3zrJ3NjbxPML05Jj9lkieGQKcVW3IEpQNuwbh/isSNof549uczgu1/fWCVWtREZZiOoGxuR9jGzJ",
-	"3eg94hdnghLot0ZFXzNLcXr+GwQ7IRVYTGIdMvrX6t9scklFsMLR212HtbhiVwpfOLH8kPXrXhWLsyCV",
-	"3QzBOtlyupINu+dKbdi965ZwKV8Z+Mn2mOkQJu2ZSGSNvt0gZ/mCd7qflmr9/OyG45JUNKGVqlapEVvF",
-	"ln/9Wz+zlFOyc7LXdeGi7MnzB+z3VQJL5HGePP+K/b5KMQmYoxDkNDR5SumOTh9Ujr4VspBLd48JLFgH",
-	"cT4t+GUOJCpMc29MdSgt3UPMSy2MHaLdkKo3Oz//3X+h9LS+cqgbI1Tp60UMmMR3qpaEgRUTkJeNg3vp",
-	"CIgNG1TwDSGfow/WppIi7yIwAL2uxhwVSAaymoWqm2qE/KTrwaHLQEkCr9dOHrBqLiOMAD2TGHebTgrg",
-	"51wcl8Fwo4nSwkWZVXFdooR5XZi/erg/tA97xzWISPC17+nO9QNd92oNu+2I6q8efAEtnea1Z0+wSUqw",
-	"XH9z4po+peih0+JccjvTYnPIYSukBQcFf2suzwem8SK/g7m80CrvSjNjQVU5RqGeYxKIJRm2fHNmzPfu",
-	"fbrY2umXR9t79z5lnbG4qvC7uFQSQbkQTESNos6gP2pxLltjIOqe70tuvXVEyOW5CCZcFiNh7BIF3gtd",
-	"SOt0GwnijKGZ6NXLYzL5KxiVLeAl92Hb49mES4QGoGS8EHNgxurS60Za1QnuaqjgbTzbh77eDrECJZ3i",
-	"rCgL254oa0rdXZ6wYaVOAdZjWOSr3tLzlve0hq0C8KuXx+uLtKGeIc7tEudIPqEgVS6tN9mV/OyOIa/y",
-	"P6GFAdAx7969e78yZMDzO5iu1IgAskUYGESnlHSJ5QvJqiTZqKND4zs8f/Xy+MDhYkCR2v5hvArk57np",
-	"NtPRQnaRH/bfbtMfe9UfL/0fBwt/dP79mz/+bvvbhefd1nwk0PshjLN1kWAmcs0veblKueS/khspkKtS",
-	"Z/Pr2egi36rvqXj/JSGXQm0/Vwcl3m6LWyaehQWKlSxQzCYNWMJjEHW+QU4Q48tuIHz7Ite6XkSVr+z3",
-	"u4e+rB+is3F6kLXoXyu5WzOvyMpo2Hrmk2vD08LW9G1X/W9dgUhrfVsJLK6PrV6E5gMO5AO6BFUKPWp5",
-	"USO32lJf9477AJ5BC5N6TaRP9PH/JK4rSbA8KWAoLwtD3ixha31QvPXb2mBPnefrxr7Ym0Q90dW2PO5p",
-	"9WnPl72g/AWbAfLcxDYsrqYcc1zMZCa05YW08zWbI7dfs1FzXmu1jvesX74/QJmVdK5U7XAw0wqVf5P8",
-	"NjUk/xZ1j3eF3mjkoRBoCpYZ/hB+pbkU9W0466ANvLuD/1R6ByhCuiURMLGi8a9pJjczNMW3O0uEvAJr",
-	"bpDbh1Ny8eNOsbhgWaJ6l8wkbZNoiLUdXN8s65t62vZqjddx2I8hyoDgI7PXQ6MqixbHNKSE94O7fE2U",
-	"WFfniW9lKwnPTqGR6PcTqrelzzfJyx6HTGzkEu8bvT5He2hinXm/YdRNRZvXu9Xjq27hWj/x97ALd/An",
-	"Hrzr/N9VNIZ1ERA+iuKO6cVXwibczcJdcUtunMvuhhanoIr43DHMl2NROfbKZS9tdPcGEJK/2L1zC3sE",
-	"J6s67S6jHGblqOJ0DOssUARMvd7tRbddM6vj+7r9YsfC93UXrr/b4wvq2hmoXVjX7dpa1hyeoA5K8BxY",
-	"vld4o76+wV71V+Cabnfw9XsiLOHOXTkP5GB3WGUMcIklmq3cmrP4ygs+Oultl8BLhw/YQIbQQjArrmyU",
-	"3ubQIXxarUpwxdE8s0IDpaIU1/wsYWUhnbMbLDbiNPNzwbSwMy0b+YaDi+2ShMPfDQZX/f42/Pdz+M8X",
-	"8J9j+M9DeLj7aDC4+uzRkozJL0G4uGEU8w0kgJsABCwxx0UfRGISuMarmcyZVSGyHbeVZC7FXgWls77N",
-	"daka3GRquok+Dj5vawD71D5OIzItbI+djtWlZGiEUzITh6ywLOPS+X0iCD/6OK/pSUUtJh401A3k2ozG",
-	"uF9uyACB//oQrWRalUvIQy3RLl3vZZHBUMeqyASCURuD0MO04OD2DmZDDDCp/GDoXMWuL6zj1Q77e3vI",
-	"HgDJKWy3xx4HMHP0x6ViML8ONoNr4SxbvoqzOdlf1Uxvi7kwlNtnMfTUCGsYDdyIcjSkVpZ55m+04wsH",
-	"CoX5FKCjOHq32XNGsQmdqgw7KzB5ULfHAo3Hj101yDBFE4gKh4ISgOCqwA0QnSBWmDAd+/27rmFU6UQ9",
-	"vWNQM4Rd2u/vL/9KzyRTmua+x54IfiGqO6FxeFkHO5S4RUt8Zsxu713Deu/ubZq8uSIOt8CxQZZ6pdkl",
-	"ZlOD/TYzoiJuh2j9k95lmtzZnbaOz/LCMqt5UeINrC6laE+DP6kqZGeiVPIcNtIBS8ni5PI9oXbaJ3xS",
-	"mqXVYi1mhOoN5AOyzB80EuzXdFh+L9CuS6u9lg4k9YeXaHETpRs2dcnhUvldZ2bkHT6QC/dkcnsU+vby",
-	"edcpbCtR1ULepmL/jBtRujwTK3HCoN0v/Mc3xE2qA0MsqsvQQWZNyKsn9HHsGNWSZ9AqBunfMBNlQaQu",
-	"J98moIkwJkhnFHkcMT8hiaftnvxz4kG7m7EDIfXZWhP8InztE7ytvx2pAijT1g+rZzLznFvjvtAzUeno",
-	"LwuZq0uGQXITynvBJdtN+v2+nxEg0CD24feqzIWx7gPEmIA5br+2LjzU2ybYGzFC3LVR4TU0gqCGqxYh",
-	"zGq088PGq3UwnrLIPWyVB3H9jLwDmt07IdNNYLJvFliwxHnPtGyaUxfZ6Q03ubgocOZYR7Kf/+7v2e6y",
-	"BGDhhN0w0syIUiwJjPe5oH0L4QgLDN9URqzB8uL84aBhQmJIvLjtpev/Ij7wzgkNGisVehwsC1wLW5Rx",
-	"R5coiNPEKGy+ElgbDRJiw50s2dJD8/2MU+qiUq3rYFbv+Klrpf70cdRm/U3kVbbw6jT0pv7iiSIXtIho",
-	"fQBgok3RvQVQ/HaiWXNxm5V+k4UShLRbGB9iOQq4kD4pUUxNJwVFROPHpruM6R/Gt/XiBzdDo1qufwl7",
-	"8o7x+pe2YFJKXyIF3KQuZdKosAkc9bBRbxpWuilWVvOOac+sajx8afjW44RGa7a2gNDA4Fwd0xzFH9XC",
-	"jbyJKOSFq3C9ql1Y3wO1sbbRI9zG8eGYzYp80T2Mb4+Oth99+8Pnb7fjn/ub/Nzde9uqM3rVGi12xDBe",
-	"DH13M5WHlL2T850nEAY2c//+cTqdfJs2dFxO7lqi4fp/bf+/v/1hN7m7pD9fc11wmQnIW1humkATMyvu",
-	"7pjv9lJygL5wtbHRTGaxP33wmDh9cMBAacjSqboUOk0G0nSuuhA33P/pxwm/6lwl7Go4KWT3u2yXBGv8",
-	"idWYCS/LmgM2xewOZM3x4NA1AbuCa/BKZh1HXEBFASr7nd1ev9fvxs2z37Fs96cfr1rBBtbNV5Ltrvnh",
-	"krCQxvHwgPOQ3CTbbd3UX1cUoZFpAgGIHRaFnEcwX4Qz4UiTczBZGg8d37dTbgwmVynWtXy63r2ggu7X",
-	"IyxPfQ9hFh/ivluOL3ATf653DfFfK6fk8nijKl9he/7m3z7AEIr+Tz92Rqj/AS7URUh0d9wfN7yGsMI2",
-	"GL7WJNGrrkmmlbIRCDTRiRt2a/M8JddcomF3ruHbAjJT+0rANfvmtw/ekDazUoH6zG5O4enhWdd0AVkV",
-	"P3Z9hNi1c3lrgeYVBvcCx+iySOLUVQA6mKDNOIyKtRTyERfhKOb1Dml+Ey+Gu9XPVbyyUYycO5gRVHid",
-	"f1nTLyXeYx8OENfpfEM2nlbBcQKXhvvSh8U34ufPBKZCgVuVvOpaDIiR3HzRIPfrHr6FRa9VtDica9QS",
-	"C+d68eosZGELiLAHHChCBMmUtIWcFfI8ZZ1jeBr7B8Q9im9MVxHtRFd+/aszVPk4VFPbMFGVjXHdwFfo",
-	"JhspHvb6mpr62l4jIdSb2GBpbwXgdwmMRFDzXHIg39zMNoO0X41Y9MyFMdY+SxhZDFg/uBlXmBIgOdwU",
-	"0XBJKrj+Cqb1xrfmB3VPXucO8B6K0aq37atvMKDymMu8yH1isQ32FGDniiWIPjgO4UM1s7FSZhn+GGns",
-	"VlbjIlvZzIglOucJv3LRlxQlCkE5eonCo+T6XBjL8JPKHmV56UJMmZLC+UYRhtpM5qgEKgzL/GzF7J9D",
-	"DZPKRuLFTTSzyor25MS8ahibMq+L6ZTkHLq8MTfxIROTqZ3HbvRtBrDZZMjPzLBtfv7lv7757cnDN35W",
-	"gM/drlKjBwphFpjftt7dcBZCpPF1h+Sb8GHzkFRV1Ia7dJ+EXZiEbe1WY/m5aQ25fyK4sduknTVuO5ke",
-	"6BOuvuv37qXs57/53+DX/Lu91L2uBVsAE80HEtUIxIA0oXVQt+j0Dp2jciKKnDNhGS97CfvL3kAej7Wa",
-	"cKvOdY99wT77bJ919vr9vS7b273X7XnVhu8bNLi7A+qCn/6R3LkhP/qCxiNSZ1yBCoO2OeOZVsbQWTHM",
-	"Klaq8w7+GsjTB92AsQePa8PoJi5fGYyXykP85KVkpw8OXRAkH8hqW6mRJyZok8KNR0GxQWviTiyP/S0A",
-	"yDwNu2GocJ1MrxkO7mbf9HwjjmJRfHy0uX3AZ9DZmNkE+sbP0KFaMO/8zYTWSnv09oFcepIYnyg0VSqD",
-	"0aEEmiRVjQBNlBYQHM8lG/Ny1Ea0euwhTgeJoQSigJ4m1dk0rJBhOobVY0CTK41aiOAZFVcYWWKq4H8A",
-	"LcDNOVSj4URwmbIOLAAppdhE5bAR0Fv0gH3NdWcO2+Zf//anf/zpxzf/149vvuvs/cs/dRP2L/9E04K2",
-	"DhhOKWnfMNg2SrJSwudVxnXPlsKcwioMZLV+CSus0Dit8Ipx5iEHmBZwb0TYeH5i/uWfCEFvrC49+RbG",
-	"FhOspZAslUrSoNJujz1Smi0O0x2lgfRnCU9y1VPY3IWlbe23+OmDOpaApFhSRx/oL/d7D/+dh+dz95ue",
-	"G/zXQRHUlmRNTjxQsWfUhfD7sbw4/V7bv2o8W/i911Lo3zWeLfxeKFR74JAPwu8XMK7no6c4qpjyPp8G",
-	"5nwj5CBPFaodzRxNSBw58eL6qCjLNghQkpsNoC2sEWzr8UPeJlt1mtNmg22aKOsFklrTK+8lNzs3QSJe",
-	"NUXg7zUqRJlXDrqVu6+bt/c6YQ1XW4GwJZ52t18HUoicfOD8xWcVOxPLLpcOl94JjqifLyWVdSUBwu1c",
-	"5KBlx4+pF3UgEZZGoz5gVDfNFbJV8DESA8rS0WPOW4rdPWAc7kAXWXWpqirhYlNSsFycawF9hrJC5JDk",
-	"Axbg/j32W6YRNNNMuTQwBPIIw/sJVuuzfjc4SVVyUiQe7SVtm3Jxo4Vo/5uJo5sFcb+fWOyVJa+PzHY1",
-	"Lx5D9F3IZrqw81MYCY34THAt9NHMjhf3cQqPlS7+hJzRAfsCvyXBOEMfN+9Vx9AZzRzUXOUSljpVEQK8",
-	"gfEprfm5whfoHpkeMiME3VKUUadQ4IOXXm370W6TU5oDvMGlQEkLu1QJE2Nrp1tv36K5eqQWh4Ttg0uW",
-	"0ISlbGqZ32cSGaOSnyntjDeR1imwRgmwmWYgee31Qm6rhEw/lNDFMZwxB8h4lomp5TITwFmXRTanpDJG",
-	"wCx56TIhZhurSti0VNYkDg04Ruk1ePJm8rVUl3BrfHXks79ClVzWHC8HciA/+YQYM1okD57LLXG5vU8+",
-	"YUehfwwkTJfaPx4LmgJHxflMi5xlsOy64B5gk+uAg2QYHEtJ1GM6OysLMxY5O58VOUcXcayrmneaHBib",
-	"deoYQg49By7V+Q3DE8cQnj5/gVRsIKdaZCIXWKfXpkohcj8XyNZ/75IC595t0yXvcepWwrIfSFpQl+XH",
-	"zXIl42gxFdz7NwNj5lVlKc7ub37DjpW8EBKfDeQ2IQHRNeVC0LVgRvLXYphhqy8L/zQAuXRSklMPWNBw",
-	"pUDgGePlJS6YLqwNMC3EZoorntlyzkxxFTJ08JLlxTnuWsY66V5/79Pt/t3t/t7L/ucH/f5Bv98jndS/",
-	"T7sH7IUy9lyL06+e+FMyKTKtCDjGJMwoqIbuNfwgdyAypkKNGYEc7vy7c4MSe+gZx0ugKK3QPZiaShmF",
-	"589XOcb7pQPH0vtDJuRcC9D2WjCwLzGijabHThR5xcNen06FzLdRJPPAi+AgQlsCThllOMczw0JSaqqV",
-	"JH4yHLnrxrC0yNMdwMhPyd8ciuTc8jPSz6upwRRRjO19d+8u22a7MEtuirKyENIm7C/5BT9FasQKSQhp",
-	"iZseOxYTPz04JZB0CbYJEpQiF/wAvEYocQVn5PheGJbiTZqGJAgOYqrCiocuwXeVhcR/bBScHmCjYrWq",
-	"q7TKc+Wrlm7JIeMGD/7sga5ggij87bSicGg5ziqV6rIxrkrVJW5THOoznG/a+aNCwsgeP3z4cPuze/uM",
-	"tDOmR6fHRZFkXOs5e8afIaSwxDLzQzwVzuEJlyhXgnRf4qow2GsyxePLmu3dk7YE2C9W1y5RWgPvhKuV",
-	"sl3sPaiLUq8t4MzADpaixBE57oPR3eujD5gjzkQEDOukbazJAUPWJAWOiDGvbw1VwSS5nAocWOGyxI2G",
-	"UjfJ/TB/GSH9oCcCtuZ3OV4tGnqbG7+RC8NyldEVGOaM7s0zceh2r2FmrGZUEUWYFOdSaeEHY8diznKF",
-	"ZWGUiUu7UXIrNHPQ9YbxPHclaOmREKpRdAubxN+fJnH03SRek4O3o0+ToQXupIp2HLBdZhX7dJ8dnR4/",
-	"fsxKYa3QJnGkD0unPWA7hvCfA/jPdprQkLhGkcIJ6lQU9heWZR3i/lhakSqQv1/JAmGnoWYXSAe1RbF0",
-	"XAf8en8vgLXIDOQRKwtj3W7kkp1rdRl2GsWQdNK/eBjj7UOH/RN3u6VdzCqH64oKAki6D3MIKyQZZdKa",
-	"H8Bka9qVB04ISFkHvmWm+JM4JOYLO4TGxprs5FLmIGvexWMGE+lT/nccpsJFoWYGmwfWLUran9bi24ir",
-	"0QaJJXzdTSL1FUZd4MVgfPQIfoxfHtIo6ES4AA4rJiapN1ct1jNxZY/pYZc6PeZmOFEaAjlY9d2X3DyF",
-	"h90e+4MQUz9TYT+4sf6+1srluChxB1aVMnTrnwnI7YJzSbtJMvT0T6OF7NIRxOJRrQeovgZdIs6/y1dz",
-	"Lg49Ke2ktbV3bADuYHekUaFkYKIVm6qyJJ4L2sATd+RfF4apKf8evEMr79/0BT8XfsYOcffYsdteRSZY",
-	"XiDNJApuZgJT3+BfJJ1SuJRbQEx5s9/v477HTU/bOrhkFNrnSuxwh5KMEm4jixDsZu+90cwchLxtxdgm",
-	"EYNtukDXMVd8KZJwsvB8YJe+msHlHAYPlVXiR0wJsxJOcXSSaV33+324ojGfEcWwpd9DlYthR0GrTDQz",
-	"UAIQsIS0bjRE3VDOGUjizWG1U6bVzAqnMdhAKDtygUgYtCtQSB9IDzBK7RxAR97QD/YGl/ANO9dcWsPe",
-	"DOSb7e3t8H/4MJbv2JtanN+bKLQPBkKE3xFrYnPoJdyuCX0cr2WkefbpoLrMNRqLkewNe/L46SlxZtpt",
-	"gzdUv+cRnZAUCUeJ60m1pWzI74EnK4l8pYB7VToTrvm60MregGhlLB+NWpttbknQThGAHAvu14fMIeTG",
-	"hivHutX3N/WApGT2ph50CsNGBhO5OGh+5iUi6gWxylDHQD6sCddInYha0EagawiqJ/mP9O3iygoJF/dA",
-	"tsjiBwuhrZ98AgyHkuKTT5wpYIIGk3xC1kc/EryyoAsiD3GzZDzRdEysS35jAnMDX3sptBRWYFrVgXw+",
-	"FfLoxWPmVRse9suH9HF3hKqRA+9WaT0O2B+/hWwzvp67vT75jRl3KGiiUJCA0/EcCu3h7EKRxw9AypMi",
-	"s84kbIBtO/Ie9Qmb8BIkONhfnvvDXXChIJdXCE/d7+8eEvNa5FGUq5pZ0DK4maIO4dd3eyzdGQte2vGf",
-	"gCnYgX04pz8nwuoiMy59xY6aCsmnRW/OJ2U6kCgMS+XDU1M/cTgRXU+YHqKRyFMhNBnhQkoUTe/v3/uM",
-	"TbU6K8UEuNgp6UILJXfc099Bxv40oUnhA5m+oOfeZlFIGmoBmuCEpdiCSZ1gTIqg0UhgGDDxi8jBcBID",
-	"zlTu2Fq4SKBHn97v79I7jOaALeSBn+Fj8vDGyzbkGzY7ezv1DCCskw62BlupBzrFiwPLdw+p9ePTr1km",
-	"yhKaTXfKQgqz44g9/iPcrwySCXpCDNxJihXuboO0mLPpeG4QHBhqQP4JujYWPBc4zfh4t+v90l1Dn+14",
-	"1id13anubegPNe1jYRcvIV8d3VHEAiYsnXI7PihyYoNT6sTB41xMpsoKmc23/yDmyOSRk4GTmCaFoWyK",
-	"pJOOpx4rIg1QYbzhXxOHbRw/teO22lN/PJiZS8uvEnap0eo4n7rYFMeiRbESXAu4eg9p8/jobzB2leW2",
-	"q+0MWGgt+GvDOEW8+2zVjpHpcOnFjNiy6C/9gYQzl1A8Nx1b+gJYES2QByiqOWKvxRylwv29Pbh37/X7",
-	"pE8DujGQg5DSiY7SYCtgkaWO1RwWeXroDIozI9g5dMSqWGYrFWzhZ4pk9sIL+JXkjxVFwe44w0HHR2Kk",
-	"5wXSv9p2Qur2Y3DY5yyePiUFCrTBdRZFQKTarzGcxmu40AWwVOcD9I4Dmcf5LqJQt9vb7fVZBxeikOcE",
-	"N4JVsVxMBXKCSjoKPRe2i4d8QcIhTh9llYhTRfEypaC+yyCNICi1kpV6CorlSEF7rClNMS7NJSp3AgeP",
-	"PPItMIYoXqBMjIFZju/rYvW0JF5htrEGD6wqSC84EHJJPDjlMpWFFNRG0Peczas5Il2RV6gFTqjGcUQy",
-	"92Jm965XskQl7pAmh3X8BiSdH+23btR2pVJyOhLKEOp4FZRufNoEOuSRsOCVaqyD0mlONnLGhERGLfh4",
-	"e42cmwQwAvTKIhNANKErR1OejcX2Xq8f8rlpga2S0vnJ4+OHz04fkpXBFQQrAiEnbFXFIZxel87iYA52",
-	"di4vL3scX/eUPt9xZc2OqxHLIFq1LUXdEEHRVsZlwO7t0ofu2t462Lrb6/fuUtzUGG02/uKHv89FW4CT",
-	"29Z7EBMNUiodIK0yYQze42UB2BXPUKLwzECPclPQLn+cbx1s/YWwX7qmGi6Ce/1+BMUPf8ZMwF872xbR",
-	"7uvsadQEWW0a48Buwmzc6/eXVRP6RTntJC+ReakZvLYO/vgtOlxNuJ6DNxQoqQUGyVhMgPjHauRm61so",
-	"6tmopZP8QqP+VMwMwSqJK797Gensm/N7SJ8IVljiJ5UEdaMU9lLp17hE1AmlUYtgHHDEwpo8dT27dk2g",
-	"XzvTkheN1WgaFRcm3rXwPqY+mrZJGMfSRYiZ16UrAb6Tnn8Piszo4gT19tmsAEEPbdprbHtX3Wbb3ndy",
-	"g4mOuw6ih+9+wv7d0dMn72P+X8bq3lVTTxLFmjRGyBr5DRert9M5Lq4IeTgSdq9/dyArh9DmqrB0onIi",
-	"2il0BW05aUTOQlsFWmLxskKDTUgifeBsK1y7rZB7XxoPvESdxJ500hNh9Xwb89emXTaTtigr73Oo2QAJ",
-	"nSi0ExB/G3GUAymVLTJhnHOVKEc96DluD5NGAjdpQtyLhBVgsJonznmMtGIlP19y9k9oVd4jOT5Bvw5h",
-	"TNt+xeaZVTSfN96fUOru9aVOaWpfSX7BC/LNXbW1q56v2NYXuzuonFm6sT/5BJ0ZDj75ZEHzo7RXYCAD",
-	"fAT1MK0uTcIkedugrjph3LKJMrZStIM7C/i4kr05ZYTkAEILql28HTov8gOs0CWI8TyKe42clTNy0kYm",
-	"hZ+MvgHjP268kGjCKQLckyL3rSOXT08HskOyocvZ649tkXdjszTwp/UcIgqUvVLott16KrjOxjhJMQiK",
-	"QeApuJK2UBL1yG4HWzSCrWTNjer8cN4m7bXVU21UVUYON5/utzjYrKytyJfVtdfvr10Z7opmRa1+Ty3Z",
-	"cgGL670dflytJ2rpXaUREuRtsrW/zqn/gufeDwuL7F5f5JXkTr8tciq0Bp14pPRZkecCvbL29+5fX+Kl",
-	"Uk+5nLvemV+IjgXKRUelCY8GN0l08s/m7rRG5I1wPMHba0E9G/AeFjNqekJIr9eihHVPrusoIyXZbBBF",
-	"pXPvVVGTBtHU7FR9Ti0i2dl8IMHlInrZY4+cYTBTk7NCOq/3o2cPDlkKnB0yC4V0MVlE9axKXTo6eJYQ",
-	"+KKS9R70GJi9jMO8qdTNWXDgwST1oMgh2+2WV5BHE0Yapoi56h5gCAxrMY8OZGz0S4HMB3Nqqy30kABd",
-	"RGURHMi62ZEQXnDMtarBntirrH7oP4JNIOs1kK6BylS3QMdhyLSg65HxGgrWemQnDkZbRjQrPK3bqzOk",
-	"P769KgOCynpV1uBwltVZgbGsV2nAo4EK62f6IddlIYytH4CkOjaIO9PSBzhgtQ6sE3u52D5kHl5sXVxd",
-	"07pVt9D2C+/tsKyVxXs5IGjd60fOyXvX3tFJ+wJVp2enMrRvvdcbHTcYHOG2Kx2czFCvGrBkP17ut365",
-	"HxP+RmFAxxjd3e72XXZ3r5ccu36V7/xQ5G/fw32OIa9kbRgVFmCIUakSPIKVzETkxSPkeeHcF3MK7aIn",
-	"Q6fnTMnNuTDOK0ILX9MSqRencPH2ueaIYanHDz7A+VrGLhNG8K/8SPX3ry/xTNlHiN/xZ3oGj2gpaIsW",
-	"1pBfvXPPR28Vj8H5vk/nrWkfvGHP5dkiz1wKp6k8Wbwgr2cy8VipyI4794lY2ihM7Da96iQukel/Dcfx",
-	"OgEWp8l8PJK/giMZbT101Mkckfcn0B2md5Jt6cgFj3TcblNl3ungEXCQYRzkW+p1QvG8IdA38ijwMFMh",
-	"4Frp4hzxRrxDoh37q7JK910WkvyDWIFG+NRXM1Qj8P6wmPbQVRTuUQ8bBKfeWPA/KKRnPABLn2pvdCPk",
-	"aocS4ReIjIhV7GNVXNhiRziyg3UNJEIBIGSPkiLou60AnSd5uyB+CrL7Pum/zoXuOgIUpse5h6RTEvZd",
-	"/oH00EeZkPeeBzhEX1EnEQ7kubCG+eCOEJ5U2CS4WfjRVj6lqND02f0ZNwNpZlOhjcDBo67Ldw3MtKZZ",
-	"Tc110c3xARgiHNBf7T05zGNryjnLV/1wkhDjI/RbsgNJtgeO6gMMc5Ui4PGy5x76OmQ0R0pPR2jMC4nO",
-	"5Geu/+AyvN+/nwwkesGkDrvLDF1p54dzgrCknf29vYS8r84oK4Nn4SoPrXCDQn2HIb5rIKn7j4+/ZE93",
-	"+wDtsLfXTXye6iqsC0K1HOIY3EPO5QNdbIZuV6UH1AfacRi8QZc0Pg1bDPY9zIxDo3CFDfpGpW4fm2GI",
-	"chlKcQkui5aVghuv/cYyLkjEnQNewuM51QO4HP7N0LtipAdBw78Hwa1qVBmKuK7OMXoo+GrhFJRwgOqD",
-	"8F3I1Exaw1wsra+q63pRuHxXZgj+N/EwagGF0YcpTR/Fe7lVAn+SxC9RF/c1474H1BLox4YYrDsUMjdD",
-	"KUTuMmenB24w0N0aGYAJgILMebKV6tI7gkD3xsX5GH7Tekqu0YYBb7AhGAuWhgYP0Z8LKnHuztQX14ME",
-	"A20wFZcDRfN+npfjOQUinAspNMcojNSVqjx2cJK7bawNEfWH/qJ4R+YGb9gvVD6/Nb4m9CxwI/VYYJfh",
-	"o8FX7X4YMSeGUiQHQmz/icqWQG694HYcaLkrnLC0cW8j9G59iMkq4/r/YDxdfw2e7ljJUemgp/d31+jT",
-	"Cz4vFc9fKvWE63NB5e6tMwGQYk5pK/KnIi/4yzklH9nf21unsPM9AjbwobRgu/0z5VofNv32nbsbypPc",
-	"M4V+T0fc7PfZbXCyEGHQm8rzteTHG+h4MOC0VBYtEtiYuThP3chePPsLVkz4uVglG74olX3x7C/ep3SI",
-	"fdhxs9CiFD4rJCdN2zruNzjKj/LgL36yYONEgmDCaBe9d32M3+Xv4UidVhFNgQ0MsCkTrl8DWouHeQg5",
-	"GRIPrjYqcoHYEGdc5iTLoJCD6S7YlEtRYl6sS5JX8FgEB29OXonobzqQFKbm6w/4FBH2BdTu7EzXHe/T",
-	"rz/A8TYX57+7upE/3ccD/Ss90Kdff5gDXUX9rafuqR3q5hl+vAC0AmMid3tw1qnC0SOEFzdgFPXIr49X",
-	"0iFFU9Fprk45JSu54CXjlqXV87SS3lC68rJet8cWQkF67EU1dkIKaGK2cDn3wCYYODN2UBw2QewXF30H",
-	"FYJJGibDEYXDGmL8QLoocRDciDSlgD9lUoh78SEphMVQYuzpzJoiFzXIPJEPJEmAShMhY5wU8T0WK+wJ",
-	"eQHx8iokHNcOht0M5H7//nKpLpqUX51cV/VtI8Gu/146QE0sMxQ79do0RPUm5GzroC50LnRv66MM9lEG",
-	"e+8G9ThqE51hPepV7BkXHfo175gVd4oWERzMbRgRTkBiNJGljnD1gm7bWdsDt4i6rcoEDy5klVWDgvKW",
-	"mx4cjqhjMgk02innQC8sJWr00ERPtBzWhWvhoQsp1Dboa2ALHgAgEkEXlBA66oA9qmwOxvkDOM0e1F2h",
-	"wHQenz7fefzwmO1+1t+7N5A//bfPeru7vT2yCrBcFyNLdN4FChrv/+Y07R6xy00YhYMVxnG/eTWb1ZSx",
-	"jgujJqwu/A7CkU/hC1QPjglHduEWOQmLL37FjggntS26zCEBF7YwoKv7yCH/0oQs2lieS6adSxwYUQB+",
-	"GajALTv+BtKmdN6b5qNbcEp4GcLmqdqI/3c6pAePSOJFLZM71BXCz4FncJ1azauGK0E1CUFySaSEw9hb",
-	"JAJe0E4IDBnrqQBjA4msQKbvMJMpDfRKfD8jsMGBdLhtSIGwjLHcFsYWWUIcKtZLyWjcE9IEQigfGkaR",
-	"sU2WIJwkQWrAyoMpUIaUL57B9hFLEA/C7UwL1pF8IhIXPkwxw97QUvKzO4b9SUmRwDxyoOtOwVDDyDFq",
-	"ZC8xclnmTdpMnzuKNJCnXx5tA6Cpk1dAaRFynJH0EYzOaP+rGaYRE26VNuEEN8mLB48+FEl1u/ydlYbu",
-	"0Hykob84DUWNjy6khXc1PNb3EizhaSZ+cwt84FOFSVhj4t90gWBWsdRBCDn9hE/imhLNo5EaF5GQOZpJ",
-	"1s9ASMWlaM3Bz46waiRavh8uPylJ/hiCSdkNySbLK8sqeAwEGV0B+AA7qukXKOcy5O4XenFkGHRw/4B5",
-	"PEl4MMJEecAh25mWMYvMEUlXqksipKadV4N6boNNu31Zn/r2C8n5Sw241CuRf5TdP8ruH8DrrwmF9l4d",
-	"/wLXZG7A2ybXaIYfNhmzS4c+L5mSwjCrVLdyl5pwWYyEsQ62D68sQUjQyUBiZC1wdHVWDh8hP8ccO3dI",
-	"XGaU/tuntQwsGzmb+XQzjoEjanzJfWTxykCv02rafpWibujfsrgWtGWHQXxk034FEa5hNdqdfTfkzZZo",
-	"7pJ35seOJMPgeK1kkVV76CAOwweIc8Mw9wKeRp99gYwsCAPeENp6LPXteV6NB6bsjqk+PPScHgesPkx+",
-	"RL+FqUhmzBN1uGEvnp++ZI4ndRo0qFBoFrxNgzgIDrCqFKzjW4dqv+fbrhXt8NzobbL4Rg6k7yAh6k5m",
-	"xnoY7WiOiIMkkEFYE5EHXZ2LQiUn5qDEdM6nhCuw7WoJYzpyuHB+qhOwFKnsNWaaG8i8wKsxZzxDFz8H",
-	"knjoQPpBAciLEncflCIemD5tRS4ozuWvk4UMx+gXcgMM7V9LdT+ykx/ZyQ9zrbz7bbKCg1xIuXvLLkLE",
-	"RMatVCFdLR4FiJ1g02Xc29eN7L2/Qt5tIW3yEkJSm/iPHNwvf9S+bsfqbuXmVji7runXsw4nV881tfyc",
-	"sccRTDlUWweRjwbjZKYzbrMxQbACYxI31D0M6N8DOeHzYOeQokqhcjZnY46I//VOuVgbn/AlNEzJcYLN",
-	"0nF2wLFhBriwSJBuRAG3U2KmoW7dVltYn6yghmp8EPDQBnK33//pR0zEvyNd1muo4rcPGL7p4Cv289/9",
-	"PXOvu/47jPkG7gtsFmMBqPG/ffCG/fwf/5dGBEqV06oXT/LQqlJo7tL8pwkxiAPpfZt++oe9Pvutj3Ji",
-	"r07ZwxdH7PSb7c/3P2VPsXb2eb/ffxCreOvreLgYbETdwmSdushxjhIfEzuQtQxT+NgHJ/kY2aMKOBen",
-	"ViqmVbBbeUUn8JaUUeCoNfqrHvfl5fU6Hn0IAxtIbmHzkjkFiD1rhoPVKlfa+ZxHGmRElbwEZvuwEUXm",
-	"rEvGpXVdiD2jO6fHjmTkX9AWCVcjz941gLpQWCogzEASBC7x5CA/UKAWjRj0IyStxJUlAwkfcY+thuvi",
-	"o42w887ihP5tMCaruTQUmOVdK2Io3vsuR4OTP0oHkuNhr0n5TOp0GgBgAeIfQ6ns0L+DHA5ePV5FCsJR",
-	"j1MehamqKolj7aoqGn5t7ltA9BkVEJQHSNIHmPI4XuzI68FvoyiyEtqsnTlc1WF0YBAfnlPQ3xJnuZjM",
-	"/+rEn7hzv5AEFHeBZixfh4UJkfhqZoHCfBSPPopHH8TBBPVS7W4IVZ6VNVm3wAZd75AdZYbZ+aH68dYL",
-	"V44kvqc4psgAiSedQukxX1Q94sGnAOCWrlrvaz2QUl12D0IOdFdlHK1tyWsZCTKWpeZ0CMweyI5Udp3L",
-	"ghg5+NjfNuSFQfh5mF/dOngONAIj4js+RI4sjxKE0qguOV20MEHkroEMj2OHjIgD7Wlgw0IOEUod8wZJ",
-	"1AyaWTZu3njG6zZVmQvNlBQ99k0jPTvVD5HTdKvxczEcq5l2KUkizqkwrh7MIE8TSCsBnK7ED3wynh7b",
-	"7+/7LKUYAa8F+vwRBj5kqFc6N6vcTR7LR1DTxtdaJT9sXY9OtzxgdRNoucXbZKLI/cnnBj1ESzguLmVX",
-	"W4Zqxu3m2GnvHTHJL8Uq4KRq6T+K/78KP5v6qsBR5W5b3qrsf90VcrsBPkeGpWRBWR5HlCYkGMXKuGoe",
-	"RmCCaLlcUkcU0oXrBY4u5rweyJCTZM0bM+26lFg4+5AJLeR0Qo+e7LXvXm5aQ4SeqWb/0ViyP5DBOZK8",
-	"e5bLCBU9fJfQmpiqvid5oa2jH+NsPkoPH6WHdUj+VzMOPMl8Be271YAbl3hoLZmgwfCXBCsbg20Rm+qz",
-	"dp3N0dVmmeHkqWv6PRIAamKVycON/yME6+17nZVllEq6vlfiqAr3zdL9u4l1ImYxUEEL+49lDjwu7NTd",
-	"HmbbJ/BzAruCv/Fjlz14PpBVXFUVINLc875qkhyvojedvf4uIEkJBH/W1dAR8y2JVKx0umN/4kYQ2UC6",
-	"KDLoW9V1n7DMLp7FyjWN6MhA+o66kCtsXjtvX1CG7mGujJdjLQypzUsxsgw9jEcDGVkYUgY5CCPI2Tsh",
-	"ZbWJU7QEJb4Zq0scQlliIBgoukkB4FDutGAzWUBSZBhfIYHBJaEW3FNWqE2feiTx98HGUOW/EOPiRtZC",
-	"sx77AECvXGms/GFYYQQLJmUpUrfbVMgu7x8dO7d+Sr8bTJW/SNLoptr5AbbN/2g4VR9ZsV9hyDMenkCN",
-	"ksrsF7M8SoobXGZ17svt6VtgwpyWkox0BCQZI5mmy7PbESVtSzUBVrtKs4X/vB+N2xEzU5GBzjwiZxGN",
-	"W0PvFoGAtST62dvd/2z/87uf7n/2C6b7WU47K370o/Ltlz/+z6VfjZufb+cTt+G5Jv805yubsOBo6yMc",
-	"WIfqRdaJUIhzUQpLuW5bZa0X1JH3qWsR2qz2LqNOf5S0bn2nwqS72V3fH/PGYpV3Nkc5yXPu6JifMM5G",
-	"s7KsBdqwDqbbqyJDUCDoAjiyKl2+cV6583dcCD6HN+xInyu5V+RszM0YE7iuEAde+FR27wUzCCv/hfwf",
-	"3MiWnCvvVL/1kcf9yONueslNhYSD5vbQ5uSjdtHt/IB04O2Ou7LWsxQ1OFpHXzIuoyhmIB+sQM87+DOA",
-	"zBea4l1MnBC+RxW5MVWaFmeWsT7RJyhi2sjJA+p9oCfXM8U47BtzxT6p5rfv/Xr+cych/xOwnW7zhfy0",
-	"t3UkZxKisDY+kcel4Nq4yC90nkSv1VqMl6jC8VpdQV5h0x+P08fj9OGPE+29dz9Nzoq2ue9ce/ARKmad",
-	"BqlKolKZBMjbOmTZIB9sY7kVCeZNoZRKeCNKwayyvCQrNeukRnwPDgv1zFPNZKsD2ZZtlW2WbPWQ/BeA",
-	"LIRUqlBoJETuk8uECIszcV4g6l2PfSHQBIHfJc28rIVhvLwElzMjLOugGy8Tk6mdU9rEAt3ynFnUKM0M",
-	"dCUZSHT/qPKzOq81CtqHRy4PFbsUWviEIyxTkwkaV3oD+QhnB7pW75ERAZUPqwiWFyUzceCr5VoMpJxN",
-	"zoQmwDuCZSJPO2RUKp9549pFtxJO40JBfiBdvAeXVG9AdAkdRW2Ypr3Es7H7rDCYYN8K6ZuOmqNKMj4j",
-	"v8UDDMjBJUAoQqa814OhwJsebk+M8HHPezwHt/2UXjjHfHIiCl73PR9xkyx3fnVfxm/TLoYTtzpphgLh",
-	"VdwJjG6wcUajKtUQdB2Oy9BBZYWPY99QJYVZqjI5wYoe4uJu7GcTZxq91Zyou/04KeovnLmcpuiRaHfH",
-	"jxOd/nmkgPtzNFLQTYEUV40aAU41fBd6cjMvET1b2+2vCttbROZX2pnKgeh0ImS+KgmbozfknY1wrUp6",
-	"B5ipQDpBxuMG8CpYvF1urhjBsBmsdMA42+vvEjSDqYmFEYnFILSZB1Qgmk4S5gUvi5ydzayPpaOeZVw6",
-	"OAZnqVeaItTg/hKUhCnBVFRhaRH5sExQnzsCKoofmS65DQKaDGnCEq9pc5x2DBZWR+U+ANzKgcy55VV6",
-	"OjvW6lKCd/ocYjKp/4Wczizr7F9ddamVGIrVJyY7E3PlgHHovJM5/iCadAKiQP8Jl9DTWJrTap2q7HGH",
-	"3r4PU+JeJyHJXcnPRInJMLk2eLMOZGchZZdh54oV0qo4QpM2i71UVBUwKDAeZsawZHwga8GZh/6QFHnN",
-	"+WAqtO8VzsJvfvMb9jgXk6myQmbzgTwVwGBEj7b/IOaIFDcBjwgtrC4ErMZI9NgfxJxqxyPmQyEGktA5",
-	"8D42dL2LCXYf4IQJ7sNnGdvbZ+jB7zPjIcG5g64UoBNBJStySx5v6IDKs788ff7MZR8Nk8+4YVOuK8hO",
-	"makQ7846RoHrhhXMTHlG0XoTAdvecTBuRifcWqG7h9TQQB6ffl1rCO8xVt2DAVoJEFXPVD5nZ3MrQEjc",
-	"Zqd8IthrMU980v0wqMSBk7ohY7Qtmjdo733yiQe7HEgWDtQnn8BckEtLNa69/m4juT/2AllF74OQAvPI",
-	"6LPa8p6Iacnn2KyeiRRcKxxWCs5o5d9bH473G7LxmA4guLD2IUx4KSIsVj/cQAAKyUYloKjSuF3TGGcC",
-	"HabYTn+obLVHEMIKZXWafYmp7zA1pUUDMeZu3O/fxzx1NO4TYfV8+2hkhU67rADBo0rhNipkYcbQH6gZ",
-	"R3FUNQZ72REnICnQwD2gLKE4OBShIPNazMPRgq3TSa24sjuZuUi7AwnXauTObZi4mipt4cse+wZ7eUxc",
-	"yzaoaw9YKFxheA8kOZkQfLZxgcVeBFnYninRMWB0q4YBWruWK591/IVJlCb1aLgp6yi8BHnZPXRJJ9Im",
-	"O5W6uN+oWSSbZ8LZsiFZZL8b9J+4QQvDXr18tP056wB9RNKHR2ebjiNCwhaGFecSNmCXIlT2dz/vD2TH",
-	"DR0C5c9gzCqkSE0HW+khe/IIluj45MkjVhZSYArAbo89KSTGmSvjNuRAZmOueYZRyoalv0l9egtaHrTc",
-	"aMHM62I6FfkhOyu5fI11mviFU8fSJlcojmG7ToqjBeuxY1XOJtIEt1HKYSrnRIEOYHresAw/Ym+YXxH2",
-	"ppIuIHL5TWCB4MdAvtne3q79H2pJXxcyT9kbNheGvWGpryHFH1g+ZfRlCCfwH7sHrAiuDEseYnG8kKrC",
-	"+LNelCRb+roOIhBKediA2uuE/fwf/1fWb9TgqWFVGCO6wt729+iKFwMZJmFY4JRIVbVSXZ6NkXqAhIUC",
-	"/gUb8QwRpAezfv+uYH3WoU+IFdvtQkVAWp5HSUKnQsNKQiJdxwl4Tb/TP2JayxqFxyyUYdnwvLpViDlO",
-	"clTEg+gppOC2Xkl9ObretQbeN1uI5qtDfxu6VKpmGi1EM9btsRN16W7agjILwH0duB+oCd8i6SVMeTwH",
-	"cbuFqQ6FR4vGU4AsAn2I5Z85fnZmBEt7KbSUi6yY8JKyD4NxhXm6hkRYIpVKd3v3xPbdtEuIGAzo2sxw",
-	"mRufH1Rpc8jSZ/wZENTHcpRW0IrFaxGbaCi7nRZUjZsRhO9GQJBCIhPjbppMlCVdM+FKASI7p1TNBgZ5",
-	"xzA404Gy4s6i4tJnqoD1y2duSnM/hURqOJsUhNgQ5pDeJ8DmMJxHx4dX1zsJBsD7OJLrIio9TXMeY0Ds",
-	"KEMrmrLwo/3+/U+JF6J1w0lxcGy4CEKzdAdKmh08L5nEf4T7RZ2jRyltj/bv027YMzjHHjbdEJdI89gB",
-	"SBFMrBTYbDh4gbAS2QItDQvhMVDkXr9P70zCQhVegvPw5XDR451GfsUuiS9UtdfvJ1ACJRY8yJSvl9gk",
-	"kjlQYHFaJOGkx1AjOAS4BJBKbhM1IZfPw5AWl8+REzpTFPqKIhN5xRFPhfL1HYOV5gKYYh05Z0MVLi0z",
-	"KmMxbsvBLzMeprzX66V+3Ugzd4WzcDCQaZoO5G8cL0MNR1R3OlZWIVewvcs67mpdvEK7AwnbO/FSEwmU",
-	"9fvAk/4k0ITEU5iB9EuZyAK+F8mT3aTfu5f0e/3d/l6SrPyif//z9i/2kt1eH77Y699r/+Juskdf7O/u",
-	"4he0e/z7BAvf6yffbPf7+3tLPti9e5c+uJvsuQld4gJyMtscPyPi+P8g5i3qOtgZuNMCG4hXhsNRcZIw",
-	"BrosUecFL7LbcJJc3Ztoa1U39LJ+VR+/976FcHVUq/Aqpr+KrV7Wy4gT3zymekUXA+cOvVNw+TTACpZ1",
-	"yHP/a0/ac1/g7XtDOZ9FrknJlheM6hUsTgTe/PDwTOREImHMk0I+EfLcjmOFcpya4cM5Pp3MrsN7cYmI",
-	"CI3BwUXokIKoA/ymo9XaSfMDuaDDScgm5Aq5qyFk1HAL5gwFURBDm65gcaJTVB4QS4bms8LEWZL83KEl",
-	"ULIqXAgbbSgvQIBeJ+7hTKlScImbYb1QC4dd5WIt9Ez+D5kO/KML2q8wZakylvFwkEeFjQ5zbMGYrQpy",
-	"jWFyWowXuJnXM94vN2B4euPNv9wrAA+wx57pdzjUQSvhRFlUuwb7DD2rWYm1yESBSDN1grYkZuMmvM7J",
-	"TL73lGgzuYJWf3SJ+RUE5np7AG3eWz1it+0nQ59EdowA4miS+ulx3g+gKXLgjhrMcz4Xr5KZSPwlLIIW",
-	"ywQr22K8PYVPQfCsRxXM00Pny+FtgmRkIx8DCGxt82GgzntTIQHZo0TpOuFjynCkcTcqQ2aAcAJNusNo",
-	"QoRLUaKrfOXTEPTrJ7HT0EA+EBpoSxPw1FOar46T2BIxK2tIXmYgQUMEJCthDcQSTO3oPJSG9Cg9GMjd",
-	"XtTKZa2LSyG5DljqB5UeDuReXEWmZmXOakbWxud3my0GhMnCg9o3SuzHJZwFw6UNyRHNNMb3ghqd5gnx",
-	"wBp13evFkWrt3i8Bq7aGY+YUFW43EJxrZHugfsWtJU1wUixea7ITEmQvgo1qQUYZURIGLuo1Ucm1AGnq",
-	"ucJlO7twUwLfYQVUeCy0gCtxCXRpyCfaQDDFGrBu8EOq7ZBMaS0yi4pMr2PApusS2x20i1Eq067zrfJm",
-	"c1hJP+WFdRa2OkqsmzSsw2fW4y4n6uFAfhpvlxrc2wFLYVPgpPAStsNn8bcRihzrBGkETkpClrYAJEed",
-	"7R5gF9ypAgpecx0MvoF4tFkROYsBcrHHNnLUNQ0U4TmaXkhsNgNJFrUjDOw/YPGFPxoX+nfedFWh5aIt",
-	"DbVtj758fMJO9oG8lqUgF7P0i5nMwW4CfXh+ZoS+IL25YR3KSR7S8rw6fvWUZSoXpDKys8hLsObreMCq",
-	"KWA//3//nvKUJSyabHg8kFMtQLEpuZ4nFWGEEhmXoD52FjBCf8XuHLI0F3BRpnQCq12Eb5BaPtJqklYL",
-	"2e2x+qTVDJDzgfQz5I1xqFR0C+7sklpdeg6xUmvzgTRTuAXNWAjLLpHWwW+abliyWcnRfqGrlJq/T9jv",
-	"EradsH+bMMvPMB/w8UmANeTukuqyqRaj4spNAUZ7TJWxWk3HwsEth0z37o7icP0pmiiyM9cAIXBKaL0p",
-	"STLpkv0lBaOGIC9W2IUpu9qOd9q4/Gz7Yu93Qn9GU+j32EB++eQzdrHXu9fbZenzk1ffnfR3UzYRxqAf",
-	"ayHZw5PPGDox4KWkpIjAm1jn6emXyUA+/+KEXj3/4q/wNQ31gAaW0EacSbCK0xuXgj9hqtrAA2mLCSaD",
-	"oihw4Iym6P5KdUc5OOGAJe5uF+fwDROSbjzM88e1LsAhjrwU0J/g6ZMnL9hIE1oypnz58uXLF4AYJoPv",
-	"jB1rUWX/55LNZCa05YW0c3Y2y8+FZXPhvATibIyoj77gpYN0xMVxdpUlEsVJcBz7AIJFoDOr9FRHntr4",
-	"DQeTMp8KVtGeXqX4U2dw5yPD+47aNJqH5dq0BU3j1rKtvbpcu6REzX+Uln4F2U7qkPHkrz+Tt+pa6RLn",
-	"YUu34GdJ9UTsZqBQXvvuskN1eCPtgucSTWXLAdcQ9DMvDPuewMkKx8LKTDTFJrSL0iUCuEGUodn5RlQG",
-	"gE4lzIFdduTckiKApcD6Vb7dzqDo1KaBmYhiJypm5U4zaALu9yW+oGy1KyjMaJ0jL8yCHHnJq+k+dG49",
-	"JFBhNkHnox7cu7ymBxM8oGQljHMVWJYkw9m7BzJqFSM2Kn6vKYNjon23F9yCe9mN3P4La0Q5QokAMJ1Q",
-	"JxAEhkrMm8lrvULdpedA/2FZ0CLunEWhrTHUHZI3OE8KtzUOg38CK/KaC2jslInGYagrAUYLRCCHEu1l",
-	"ncKGqI4xN3GlTkzxQyMpYCCr0S03J7oJfKcL8T2kJKNe/ULh6LX7sfX+CuJniNLVlVbGe01+xNP8aF14",
-	"/8rOPA+70arIzvC9B9q0YzHZ5DZfoQZ1De38EFww3t6yInRU+aARuUwYz7QyBsZF583DCdKtiWrSgVzQ",
-	"kx6yay6P0JS7SJ38gaqgIq9S81C/CM7YXwCU6KXyTVsibxAVWypyLJIVQF6uDX3hYnNvg+m+HlccenQ7",
-	"AFbvNd1ubW4+igm/djqzcEp5Y7femsBQIenQgfUZsHm5nuSwOpPHF3Nk31wuWxxHlI82YTX1ZeC669l4",
-	"0RVpIENHEWjDJOi17s4qdNiBu1X9r9QULhWV1bwo24jHN65MlRp1HViBdzj3r149fuBP/O2zc9+EKfiF",
-	"8EavTTEb1uxjstmP/NuHpKv+aDBe7bxbSzrr5evtCbdCF7y8Rbu1yydbGf9cExjfkql8KSz6qSvxNPTp",
-	"fR78RmMrodJ9hz6Gcb8XsPSFrbIJSvo7JOevoftlQjsNnxYe/dz3B7a6sQCnYpSL6XE2CdQYuqIZGu5S",
-	"NLGkLu5MXE25zEU+jCwXKXlEpZgnFdJVUXxQ6qIm0pC8NGWdn/6B8aRSUmmRWS7PZyXXyUDO2O8Z3/n5",
-	"7/7LXUxa3+ih0jWTCIUyTLWYcu3cISBWmcLSwkAJmbyw6NzgPx6O0BzoA53dqN1rF7JlrJiC8bosIO7O",
-	"ObSBmfICAjbIcjV5EsSVQg9kGKfpHrJIYZqgZQqr8HY4BG8JptIpdxnP6PXv3QP204/sX/7/zHVhB5vv",
-	"BkcPLUpui4sqD+5AxtakTE3OMPigauCOi69CDR8NA1Jg7nRgxn/68evuQHb+8vgvnkL0B/vpv93r7fY+",
-	"PWQPZ5oDjdk5fvzy6Jh99eroKTuaTnvsYW8X4p0c2n1AMB1IB9QBWlkgj8AMYlAM6gE7+/37K6Afm2Ts",
-	"PYFANpv5hfRvC6NdKh66S8jv65uBsIeLK22/M3d+gPX66Cr8kRn8YKk1F67Km0M0L93P78oKtmq8FunU",
-	"9WIr9ObPQGG1JlGqaNFHpdWvAeL8XY7SakUVAbNujDj52JiZMKBj4jIHVgeqYZ0Ai7K79zk7K6zpVkpf",
-	"8KmVhLRivPJJZFrYoFFCo6sPtJHl/DBEfwrtIXDgOfJIDk5lIBF1Gv2p0M23VOfA9C1nQ15CV98T74F1",
-	"/0IMB7Z9TSAWLlNS2eXdAoAfmEQe7td+4D9e4O+f4ODZZpw2S0RoHKlY88qmr0NID+U+WJu+nIgL9dpJ",
-	"OFjToYvrrqLw+7vdSsxyab1cJkj0hR7ICFLA+xxorDd39IoMYq3o0thdTyo+mNa6Rhr2F2eLpuVj5pFf",
-	"BZsLS/Hux0QLmZv3me3duARISzK81zFoo8gRVFgMJHiKh/0fJepNTammgFyBIe1n3IgYL2giOBmenGnt",
-	"9AHWVEWvpL5EWrndV90lk5PM1WXV4F4foGzhqtSq9BAZpsDE6D/9wx47fcA6l1wDeC1pUn76h7v4kBzJ",
-	"umiJVhIcnE7H4nLMNUQNwH87j0+fs88+/6y/veeG840w9hzjAtGfand7z1SVJ2x3+y4gx+xt75mEnWzv",
-	"m4Ttb++SZX+3fwWR9eDh2kXNiYCJ5BTeVE2sqUccGfIxxwjnON39YfgrDpwGzZaz0Q1kGho4YCNeGkpU",
-	"f1GokpRpXk1mcDDNlIbgc3ehSvRzQyfwkbj0+CcA1tdcHDsW2jlrhUUHAA1aD/S7k5BdhBzcqcnCVJPQ",
-	"Y0eELcJ2EVakGtVAwsY+ZBCKLTPCjvXwwDLeERg2gFjBHck1gudYPxeo/YNFxGPF3IWeRPwhRphnInGR",
-	"QGcKo/7n5OU4kF8dM7zI85kWhkJGeZZpkRfWITppATpNC5eKzNnp8xcOvwwhnNslSuzNkntkFdzD7eTv",
-	"+hBZ+dvaCKNdG4MB5+lFKNaCDPEQI++BfsTenuA+g66oF0vhPWBj3AIyxRNuW1oXV9e0btUttP2lumQT",
-	"wItqnMmkYoMw9qROQBMCvrQRkV7WS/++HdR4L8Y03qtBGu99YEhjOk/L3BqFLmBS4Oj6ESUBUknmFWn8",
-	"aCN7D5kxIKzPcxwOEdgfaAqdoUAdZDMalzksTv3mjdgq2uvrajmusSkT17UzLZXtmYvz98R+YSu1cD9q",
-	"N20AhlTXQsLIf8P5YbvpQS7lIOYdHMgneQvSVZYJaZE1kO5uI55oICNWiOY5RCr72pD1oFMh0PmyFN4N",
-	"CK1/iPpbwt190sKMSGWp16suvxelsqdf/8XHO/DjHfjxDozuwGLCz8WOuTj/3dWkvEEMGpKGj9fY7SP2",
-	"x6SX4smQdieMqNgt30rQtshmGrSGQBXPBNdCH83seOvgj9++/TY02DwPjyuZHn3L1ajmSFHFJnUqYdx0",
-	"e9V+h1ItcHqPCCE/rssfNAoViUAX4BY1UZVuThYrfSwvhDaCTbXIi8xnq/FauhpQYlxf9XlbpV8dufh+",
-	"7EvsklpPOCwu2wpXsXL1pAxJiIiJAtTCvZlV+RxqrTg/8IVmvm6NF0uqALoKg92BEUhwT85EVPv3WUvF",
-	"lKQfM807M1DktQKCq5hajiFaqiyyQsTT6gq01frisUvY14vJNzxoS5SC3n1hwlQ9pEiUIrNaySKLsovG",
-	"i4ulW6p9AuYiYULeCfxzIqwuMl9/lOWo10T+o93y7dv/ZwA=",
+	"7P1fbxzHli8KfpUY9t1QlXdWsUhRtkViA4empLa6JUsmZbvP2WVXBjOjWNHKiihnRJGsbWvQcxs46Pva",
+	"5+EA92EwwJ2Z+9wHGLgH8+aNebvo/gzjTzJYa0VERmZlFasoSvY+RxvYFisz43/EivX3t37YyfR0ppVQ",
+	"1uwc/rAzETwXJf55yq14JqfS4n/gSS5MVsqZlVrtHO68mghm9Wuh7hlWiu/nwlj2/Vxbfsgm+opNuVr4",
+	"54ZJa9j5PHstLJvoIjfsaiIUG8+LYqg6diLY+bw0tpuwmShZXvKx7Ulhx72JtTM+k72SW1FAP3quh73B",
+	"x312JpRlWjFxKcrFUHFlrkTJrGY89OhK2gnj7JIXMqfu9odqJ9kx2URMOYxqyq/ldD7dOdzfO/jk4NP7",
+	"Hx98kuxMpaKHg2THLmZi53BHKisuRLnz5k1Szc1LXchs0T45OBlshl8kLB3OB4P7GQ4C/xRHV3+gZ1dS",
+	"5fqKHqaHLMVv0mryYE5S+igdKiMyrXLD3LTBnN4zzMg/CaYvRYlTXYqxLAoGs9ZNmOhf9Fm6PxgcXf3h",
+	"IGVjXQ7Vg0FVP2dUp58sXAumx2x/MGjO1oxbK0oY4nd/HPQefvv7o6s/0B//006YKmNLqS7qM3Uqplwq",
+	"eLw0Wae+I9ZvKTblC2YsjMEIlTOlrxJmJ9IwrQTL9FxZkdMMXE10IYYqDKYQY8ukinZc94jlIisFN8LQ",
+	"EAXPJmGHcJW7+TJDxS2z8b7mVvTZAPYYZwf7D+9075wKI1rO1Rmtb8JKPVe5yNl8lrC5srKodc2dJmnw",
+	"FDF+waUaqk4aqu+FGU+Z+H7OC8Oil/jftHvEBnQUZajqTsYobLk4HltRrhwfHNMrLi07F2NdClZCEaku",
+	"+jvJDiyNLEW+c2jLuah1Zl27b5KdGS/5VFhHwk7m5aV4+qj9eGbw8p5hMocmJTyecTvZSXYUn2LF+dqu",
+	"/E+lGO8c7vzVbkVBd+mt2f3qq6ePcCKe5mI601aobPG3ooVOHLOskELZXjbRRij2WixYhzMoD+vB2YXW",
+	"OcsmWmaiy+yEWzblr4VBCmdLKfKw9ZnhY3HEjBC4T/RMlBxauWdY1CatLo6WKGk13qivPehsYxM8E+rC",
+	"TnYO9/Y/xfUPv5MaUTju/Sfe+9Og97A/Oux9+8Nesrf/6Zt22vBUGVvOp0KtuF1keM9kLpSVYynKhHHD",
+	"ZtoAAcDDjPRursyqVawaue1qPg2NY7df8gtxMi+NLtu7nSpxbUcZfpECGYXlmJXiUuq5YTN+IY4YPzcw",
+	"rLEu8e1YAsWFV2EU389FuaiGQdXtbNpl1z88i3O16giUc/VuD8AbKG9mWhmBB/IznjtiD78yraxbfD6b",
+	"FTLD/bo7K/V5Iaa//3sDHf1hwxZfUilqtD7U57wY63IqcmYWyvLrhF2VWl0w2JFMl8QezAXTc2tkTseH",
+	"qj1kU192qP7m7MUXCVyWuIOBbJaCcabm03NRsnNRaHVhEsYVm6vXSl8pNpaiyKGIOyAMbt6SqwvBLqUu",
+	"uBX4FpeaBdJFxzzXwjClLYOpWdCxbePOeoE9a5sdV2K3wczF11Cv4mE2qsF9XquidrlvVEtVolGRuxM3",
+	"rAS+xhU/0WpcyOy97is8QsLoeZnBRWIstwKO9LnMiZfxlLnD6bZhQATElcgZL0rB80XC+FDRK6Blem4Z",
+	"Z2NpkyYHi1uSTwWTFZHGy4KYJLj6x4W8mNjuh51yw055gguUC/W+twpxtgXPXhuSWJjJ9EywQuJlJhVL",
+	"r3ue3PbwnUn7HxZz3WI+VVaUihePy1KX73NBfcNMQMt9Bgt8rvMFM3wBUkqxYMMdWftouIOyRkwY6Or9",
+	"sL4r1/cLbZ+AGPS+z6riwC544l5dxuJaGvthzdau2Uu+KDTPX2n9jJcX4n0vHZ5CcZ0J4W5hI8pLUd4z",
+	"LNNqLC/mpcgZqlg+rOPadTwT5aXMxFeKX3JZ8PPivS9lzi0/50awjCs4fedAOXk2EUEjRKsrMwHSspnM",
+	"rQXWPNdXKkFmuzNG/v6qlBblZ2lQquQqo5LCQI25o9jnIuNzI1CkDG1LUAsBc6fy8w98+LpN4/Q+vaD4",
+	"WVu4UhHh6r/S+jlXC68L/FWYs0iTXXKLeyqoVD9QjHe4+F8pPrcTXco/ifd61T+Xxkh1kVRifhKEd12C",
+	"uKZfi5ydC16K0pkPPmyB1Vvgm2++6R3P7UQoC2smltVO6Wc4l6mzNSiWIm+cMm5tKc/nVrDO6ZMT9vEn",
+	"Dwbd9brgpkKRNtKs1JkwBq6rx8pKu3if++kbURQ9p2uSaja3pMs5LwV/jTrbeSG8RtBdXEduBkyKTKdB",
+	"48RQ6fFYqBwuM1QiVZLDvBAfLqEbOJevlJnPZrq0In8ucslf4U5534ohvEjuGXZCrfagF3ClACejVUNL",
+	"z3iWiZk1H8jLmpV9448/zs0xzhhXmXgKRw0e8TyXMJu8eFnC1FopzM7hmBdGNNeoKs3spBQGzdJHZBqE",
+	"1UE7IijkLNpbYLGEupBKoD1lzOeFZR0zITVvUZACRyv8cCrsROdIvmZRP37YOefZ61HGi2xU6KuR1YUo",
+	"oQejGSkuxXVWzI28FM+9mYtoHlAUbncOd3I9BzY8qYxye4NBqzWOtNIw61WbU6lGM27MaFzyjKbhh7V1",
+	"b1zz+xnJRE+1yUTOjZWZtIsRL2aTG8/pMX70JiFtDCz6luVAYzfS49FYbltyylXOrS5bDH8nEwF6wCsw",
+	"+7Exl8W8pH9pq12KMpeZPcIf2k5EaRgvBeP5pTS6XKDFxoqpudEQBO18waeC+nP9lArtVfPLy5IvdpKd",
+	"uZLfz4V7D6vlBiCKrUd9PSrNu90KsJULcSkKUzNRP4jL7S+biKlgOTLfz3lJrOZb7H89t4UU5SjT+rUZ",
+	"5e9ssL4dY+doifyTeHdtgSV1y/W+FKUcu7t0mRLUt/2Pv3v0I9jboiIkWvMyZ52nJ1/vnpx83SX3D/Ai",
+	"QrcGY0ECGyqlpxK0qWit67NHjgrvDxLGQZZgX52xxy+P2dk3vU8PPmbPkQqzTweDwaOhynghz91dGzdP",
+	"R6zg57rEo3rPOPLNjHCOS/rKmc3fwYy/CU/0+d+LDO/s6mqq7uwtbrbHaFsIlxrcS2NdZiLx95apbqyt",
+	"r6jlob79hbPNxbJB6dXXxAaFWy6JDUq1XhEblKtdENvT8xoFbyHXG/WgRqw3KVEjvbeisJtQ0i1KNeji",
+	"BiXrVG6DAtvQOOD+ic4VhQZjL+ggWymeYZ08ImKryReykjd2800sLf8xXqjG1mjbsCvPzerjmKwlFusJ",
+	"QXOf1Hfi8jmsrVn70i9vo/iArV3Db9uosN8eTY8tIy8UVgSyA05wf2ftHTDoP4jvgP5gMNhr2WPHihcL",
+	"K26k9nV6Tb46mzswJTvfz7myN97u1Jkv8ds3yB3eWOYr+Ka5C7F/rnzrNMcNbSnCKcapNHgxeVtrYCfI",
+	"sRPUAKBGAcWJ6bNvnNpp+XPrHaKGqjqfUIfh01khDMt4WS5YKs0o+DSl7Fygy1BaPSKzBDl1gEultFbk",
+	"TjIcKv8dQ1aEHY+ud49H0gRGB8pWg8q0yoSy+K1KsDfc9ceJDk/PojoLKUzNi4mchllnBmdJWa968ryQ",
+	"Ls09NhVcsadnzNdy5NmEofp48Ms//Je9/QfsdwnL9HSqFXt68rL3/IzN8BwDTzEu9ZRNxVSXiy6Ot+AX",
+	"F4JmH3R8E1HkZB6ntQBPKnK3koZd/x//84D9+b+yXBZzpIx//q9sTDyeLuZTwf78kx8un+q5svAgLxfM",
+	"0xFgbmyoW6qLoYKdVjnPQjfA+RV2v+tHjdfjWVaKXFo3w6W4mBfwDguevXgJ4xZDhQ56R4xXdbGZKI1W",
+	"zqXHe3SUwswLS9xi/ZzmIpNTXpgW92foKrOazFPoN+8/RmOV4DksXEV2LCMzpunHVGZvsN4tF06PFThr",
+	"o8Irk1qo1jrpwJ+akT8h21EeaUa0I0cTeTFZzXPE3PNNAktVJ1xBd1KlX+PyRm7sS//lGem/wza89QxX",
+	"NWxOcZOdaG+M3N5Y3mdeXrrPOujynfpdlsJRJI/Ubn1LxffWXqun9zI9n+fSPr4UG1Dz+gGpJISGTh00",
+	"6FfcsFwr4YMZyrnqZ6XgVuRpwlKktn0itdVvPpuV+jJ+UgropsjRraphP0igB20+vcBte8pJPlyo1OdQ",
+	"UXs9jYXnVvSsnIq2b3NhuSzamcgZL63M5gUvTcKkyoo5GgS4dyMs0V7JjVb9Vv/q+BrmdscPMNkJPJhr",
+	"/dtV6/hMX2y5iuLShxJtJM5Eu2VJnmmMwNXc1tcTjreHWbF56IIAwowbXeVOC3/olO7IyPkLOHISCfdg",
+	"VkorSsnpspvNzwtpwAnhYi5zKNyiQ6jfK0NVv1ichgHuF1Avs1kpMpELrIoWl50vWm6boQrREoXgxlmC",
+	"wkwv7a6pVF7htywtoii55fLCEs6tyJdn+gl8TrEkyGJA5RCpU+TMuW74sjhbiqUgEIgciQ+2hTOT0pZM",
+	"yY/uarKItva51oXgqn5slsZcrAlXq3QiuBWgR7x0gQRHTEEgTWMEEw5bRaGf+BX+bcNA2tl+qIWcZUg5",
+	"tF7ob25XYSeijIwILtwDWQPqEVDtXNS1xKghvpJGuIHFauLlydtEZKjpGWilotmOKiMPudahlCKYLOnU",
+	"2cp0AmwVHqdWCmrg3IAYumIdMdzFfwNLMxXc4JlF1jJeyrdesHZ5puqh33FhmpLqlNQFUDdVa8luNe9t",
+	"sULw0l9FEe2iGMNDllYiP9x5JPOnyVClkbwPb5qiPjwL0jrQKakVPAvyOVZSCnhzKQL3NyLbfcLSIK5j",
+	"KZCJ5rwYgcgOD5xcbrCWqVbaaiUzeJOXcmzTPouesk6YMyCCbsN0mVsEQ3IUyVdWA2GBfZPZYsFCJeS2",
+	"gxKQLl+j+MfVhej7BtGpy68S45ZJdSGMPcQiSlyF4DBT6Fl1N9Cx5IqEg0fBko+O+VWwErytZLj9AZtq",
+	"YxmQeGWHynMl1IZJKgf/b4SxFyCKEptCIivrGCGGKv3rx6/Y7uXeri2Fyk3a7bOntaPO5qoQxsSko5AU",
+	"esu4GaowqYk7i1A4GDkpHFdg+OyEK7Y3YI1+DhX6via+HaqgWqqOrcIIvaTHGgQTghPSIFyPpBrl3IrU",
+	"k+L6YlSUuJwr5xuBZgBfAZtyvJULcxSN+p5hqbiewXEN+9SkjoxKO1T1Llf7S5dhLhPsNdJcmEOn/Ffz",
+	"6Qq1Wl2h1qJKi5Vh7njtJDux9mvF2Yo1YfhVdLIqhRf2xO/9nWQHNzkRqfpUI21Sl6K8EAopETAe0oBI",
+	"OCv1WBYiIkqOHCc71z0Ye++Sl7gKMAlIpp5DEKCbCHrgZwN/PePZ6xfjJ9L6B58vzwo+/4xnr09qM4OP",
+	"T8/C7NBvN0VnblSP3QThy6fRLLmvaapOaabw2Ytquqi/0Zzhg0du4vCHb8c8VY9o7vDxSW0C8dFLP4sv",
+	"/SRSRFKlu2mj5t6c1VDyOI1GRUBAELxBwwhCbfjfDRImREpJ5DVbLtcr3TMS9CZZ+IpUnEDrcCde8sIk",
+	"bNB/AMR30H/48OGN2s+HDx/W9J8P2ntlS12gv4fZUg94NhFXE14i7w6VkK+mYZ2nZy/YJ59+Mujtdz1L",
+	"EKKswLe3kAoDLpscQJtgiiqLDa0FrkShrzYsgOsvNvz4ipcKFARbdMgX2bRHDZ7Hda9eT6MjtVEntUlr",
+	"5XNoqU7nRSunU12FwDx2wk9hGS/6CTsppOqzk4mY9tn+J6yz9/DTvS47eHi/e8jSvd6+SYfItZOm8Vws",
+	"tMrZz/+yD7d2x/W7ewSf3jcp+vuEb+6zs0dHLN2HSpi90sAoKCOyOdAe/1m49rFG3G9HLD3tHVAZFhVJ",
+	"oPqh4uf6UrDf4/femQ/ZdowcvWK//NM/71PLB709AygN85IttzxUoem9uOm9wXXKrFC1Is4dCb9GnbAe",
+	"Bx6mfqnBlO0kOzAdO8nOPv2C4ewkO9AfeDe43vBygEXdoxrgr/v+r/3w7PTA/3WwF76D+mFnrAitfjHj",
+	"388FBD0aYRnFQ7MOHOOPD+ZldbRnQDnUhddk+TD1B3v7G4Wtj3qtUBYJgQlsa6Hw6n9SP7FvAksjOHTS",
+	"1CVk9zGHTV4Ar5xpMR7LTAplkZGuMwcmJZE505e8lFxlIkUnITGd2UVCfDKdaEMqKyWgdmgGvwOyl7DU",
+	"SZHIhqXggpQmrl70UUJRfKhAFG9Ra/OMyMSI21YZsOLgQHr2X9evjHX6MV4ZxZbeZZHaZ60s67+DMjim",
+	"7cztbab2eGWWB/5UsanORdED4A14xnSZi/KQwY3DS/bH80HCzve+TdyDkS7lhVTsj/js+znPSw6Srfsu",
+	"Yef73x4xpVXPVYC1G+Cv0+fwp9OXdBybrFiqtKJv+yGwfIRv027NeWwzHwGnRXrQNhGr2YmTFiYCUWtI",
+	"QkKzhlcIBOZiI1N3slNt+rZ2/TuQEUp57RuOVy1h5uf/1vm7/9//6x+++bvuL/+X/8/P/2+wGl3h7EXf",
+	"0crVpuzO5m79xJJ6e/3BcrHjPNgZ0WBp9VZnLB+3YfIQ+8xycVEKMCuO2bgUItfThCm4rdgsUt1EViby",
+	"kh1ditK0Mr6vIgMknAz6nghUkAIJFMN6dT9+v7vXH/QH7ap755ml1U0H+nH48E2yA7ZK06bKzCwYRND7",
+	"lzpC3XOqN6W95m1jN8wn0j4p+EUbJZkIfimFsSRU3lQRClxnE16iYk7mmwFxJDEMSqvSNDj0NGxG0lip",
+	"Mkvn13jhZEwSyXpzYxF4+bUDoq/gNKD83to9ejUC1fjqTUUfMf9R+/kALqHW9b22riN5vannSHjha9V2",
+	"fNz9Xk0Y6+AmzdEZQHjFCCJZdW+ezEDON0B+uRRfhK9Be6tl6yVFfoJBm+JYksTPlC6Z73DCLko9n0Ek",
+	"1MJRcqnoMjeyut42d0qGPr6EbrUdiJrzWDO+BjAuRF4n0HCJWFFOpSKK0pmTQO1cr2pXbPeWSnvUH940",
+	"rlP86E2kpzH5GtIapj4Xl5K6bjqL3etu4jn3f/vfrtgfmGJXOG5mMl6I2w4AzUo3joC+ct+jYkjj7cCL",
+	"4sV45/CPm1Cbb5ts8MtSGAfVxxULtDoc1ZrLDBl7S+G2IdkIyGdvtDm9a3DKLTBkfvLpgxUcApp+l/b2",
+	"2977xnI73+yUnNGnkQdWfRhfnXz1nGW6ku1WOA8FLdISbfWs0mgjove1+zoQP3cT3ljOfQbKCNzMo4yr",
+	"XObcipWkKXwBivhMl8LpylM+tzoNHkYo0VwDbceK0UReyNeCdVAQgl1HKmyYooiTWFG4uzEZI2p04nvZ",
+	"Rsv8WEFnqNoVgZ/rK9c4hXjgIc8d56NgpxXSCHQQMvMp/KM8Zl4a0Zl2viiMavMz/E0osnyQX3lkLMHm",
+	"xiMwIiQjwdeRXwktD51iDILDGy7uzQg17SK/8165trOJ1kYYj69mKoE7YbwwurItOKaB9gBXqJEJ8GzO",
+	"gFhtRCeunwvaj3ljVGG4dz6uqKvcvKaLDRv/kyj1aMJVXrRCa8Lmgk/qxMBQcLPzWGRXogS9ysw6/4ZS",
+	"5/MMjpFUY6mkFX5/HpFqwc+LEoyX2oibvU8ISY4IeGD0ltm6pI7W52V/R/s8Wxbv6vbZb6MxnttvO5PN",
+	"aWyI98u3SU38rF/3KE7VbTvQQLAYRfJyYM2CWiIwzZ7hqOhruDWSms6lJidGKpElOaxVCYv4mOqJLrOb",
+	"NVsNvc8KF4upJhMoblIUoTaXQ8+5ka0+PAvn/+B9aquIFqnAwpubVuJ3K/2Q1/LdfDPPp1NeLkj6nMlS",
+	"mNWiugQBil8SRcoEsNE1i6UzljDEhqwZKrQSKydwBc8XSXXc2FHs9r45Xfo6LtVOmgqOfhhx/YxbIC3+",
+	"euI2rbtitJtbGvuyaXzAFfG7IyFPtmjG24YZrf3Kff9Mmm1dFG+9obZQODa21pK2gJvRVJc3btHPuXmu",
+	"SUkQwZHeVOoLcW0j6NClZTA79eqi/mwy5V/EQuwWanT04uOx/pNIAc9zcxgBZ5L2s9OmwOsmznKiCwKD",
+	"0nOb6akg0SOoC8dzlTnQ3H/7V+QwIQqRZJKhEsbKqUPtVNlElyYJtpxgSWfOkl75ddR8UECT7j2jTr6u",
+	"NKLZ6573DhB5/boGQXEBduBclEOVuvrJxRg8ntM+O67wZI0tOUqLMFXGO8CTQtn0h+plKeBCQTYA73ti",
+	"kByLPDfUNQlGbujJLHyOaluAmCaylYLLkMpH+CUMPO22GghoopYJI2qywGkS9Ep67GY0jk1gHXwLw6cY",
+	"DocZAt/BxIOEYET30GksyGvj7+f5BSk/V7tFLqta0b+T6OPS1/COh3PfoufSF6PrNRjTcGPlJb9SBCNe",
+	"6IvG8vJrado99dwmhcq9pc77b+TEEUAc507Ux5F3RjNSgcdpuaHNLhzNk6j+8PAsNBQePfUtPnMNVh+H",
+	"lmNA7pFr6oc167JWaHbbfmNK6nwxgpqpqvzjg5W1V4dqQznfToTl23w7WqPmdIRitI2yqUGmm/Nd7aF4",
+	"m9c2tR9Eo4NJOLp+i1dr0DZfK6k+rcB2FP+FEkuayQruO5f8QmkDBA1icqqfcNQqfkPaBnAj6yhNZgVd",
+	"glxXak00s0Z+USGFH5B/zgA/8Q5apC9ah+1BJLzVGhYdehgUthuIsDMS3069lzW9jTYyoWGYpCQ8vPZC",
+	"NzbsdcTt3sFEmW9ZdTCItJorSn5x2z4HZztcy/Yo3r3B4OefOo1FRbtXbaq7u7Wft1bOkgB56/GQKL/h",
+	"ukdBs6O45XaE22LBfAFDmKhY4JYjJeF7lWa/qfdGXVjIUeG32l24cdPeap6baCpDV8MmjpZpxRxGG3Pp",
+	"dCVLBKJ1H0YHaiVBPQvq46ZhASNHEIe8z44rR2b07JgRntiIDAHpUYgjoihVRUvq2Yz61zvJjncHxm5T",
+	"FNWmvqJVn19Srae+0ujVcVV/9PQ0NBUG72SjbYPLam4qd+B7UrPOb1Yf+NaIfFS5oCzHmVV2CPzImZ0l",
+	"eQhBfEHsHR95LHe3Y3jvzG68nc32Lo2uN0BM3EwztzUn3d5is2xyuaXNZA3yWos++f3pYGNlZ4u+sr7v",
+	"1+gv2yjeIxca3uabQG/YGOMaMVGGFLnDAgpiKeuEcIQ/OHJIXqFR3Hn3iO3RHUOa//6twX42cMB+HPuq",
+	"bMET32RF7bc457mA1rcKUV3vP+CZc/JqpJ74m9rUqNIW5Ho151cKwm0UbbL4iju+KtO2wZbcD0CuGlFc",
+	"LTRyo5a1+rTlVc2IvlHKqHgEcfnIWuBabPQ1iu9tP0ph420mka1Yks3D/WtrtSzf+Z3jbjxsIGF7PXDp",
+	"zVsdTI4CysJyyebxXRXw3x7Gvrxt1k5glMRoiymsDtJGCozGctX1I25Mq6N7m9t4M7X/K3FtW9T9ZIIR",
+	"pMF06GylVK8Zt+xc2wkTCsAz/SxW5lUAQHI59iAUAP52nmS8FK5o4OprZ+lu+uvdsKC1qKGm0qRxsNrW",
+	"3nvwtQQrwP3j3AV501nQxN6CLM1Rp6Ccs9+ILtH0kIIV8JnLjznVqCPmik14Ma7gBywvvDeQCwys+w9C",
+	"Sr90LK5G4fCZ0ViXI7MPmSX3ds13+2SaR/s9KVSHilrGbkPAMwUChsnDbtQj7BC8KbSQ1oMJWge5k+y0",
+	"dmtDIcJN/yNXNSqPv/EVu5dPxNVpqP6JLs/2UWzwppCV0dacgU0D06+RnsgwnwdSou1dUto259LA83Zl",
+	"7eeCF3ayJU2oGEs/e/o1bcR8seHUULsv/nbHd+GUCjd3uWuqbXM/PdsMDKC58wmbJ0Jf6kVKOwdKFAfP",
+	"rgUeWuZfqs9H8PGG6o012ADrYWc2g7tZqnQt7sxSneti6UuRQeDyYovqtlX9hGj9Gxw2lkZeU400F6bR",
+	"9WpOoimP4uPdCoXutG7JipVoi510mCyI5OXFlcQ7vyWOUiU+7KB0O7URE/TxwUYhQd82k1oOko/vv2kN",
+	"Enqq/p4gljaDpG6ayioAuI1uv5jd+rYFHe0pGBhLdnLyNSCSUO2QjI5sZA5OIPI0cCIU5mYlTssVIvct",
+	"md9V1yLCkTPM0ZLSExfR9H02cr+TCvDM3YHlXHVRPx/UJPcQohX3RN9BQtWyTm7W49NQ5A3cGjRHbXvP",
+	"3eYhFY0ojCCbbicwQGhUKLh6bbo1rRo3XiDekLiHDfU32J+XVEHj6ROs702y81pSqizfXhRnEZ9kmV3C",
+	"IXb/Pd9Jah9ivyvNgP9Jq7CT7ITF2XYIJ1UjZ1VnqiNz8nX886T587OdpLWuz1wHwztCzlx6fOYHEJ58",
+	"eeKefYse9mju2RJZeZ2gP9MkvNys+nrL7XrT0a+cHxH7kRCF4nuZEsGScgQCvW0gF3igUDOwob5gibV2",
+	"c+A2J1KRVnofyHjloHA7MSsio5vLqjf4sxHYIk2Q9z5jkrhoCMy7aoqfm6lW6sFza1WL1Zdv/Fk0W9jC",
+	"/ZS6Dd8Ag79BmmysaaUT9P1oX1AK6NuSqawGGkICK9/82NJGwbTpOQE9VjBSCUsLfeUuEuA+0hDs2mK0",
+	"pdLt7NjqAPsbtcvI9eiZUKsyW7uRScNcF1wY+Pki6j5UwChwvPP7X/7p/9rF5NdBuF7lo4OM0bK3VLCF",
+	"ZwVsZmiVUltxs5jOrLaQi2ZpOuN59HO4PFVBO7QJWPYqEIItLXiIM+CwB7yqz69n24Z8xq2g7X8r5myj",
+	"QGePzcpNgKQ6qiTJUmRCXor8dsTiVnQtj9Tn60oFNftG1qGmni+6vTa8s9qMExVdqWpsXcgqBnI72vJq",
+	"EitZvNa64CXiDRmosU3T0iKY3sLbwvgO1/sEpu5Yjxld14Ri5T7gReEj8/z724CCN+3d1KvWWb4NFMsj",
+	"DzHr/Q6VDV65DpYloQDrZmySwZydM8vSrJRWZrwYoZkmBYHF74fuOmS3xhL5WrL1ODyAEbO39+nB/d4+",
+	"82V8PvixwwOzTYye61F2Wz+d2uBu0x0/Fwlb3LoXq1BHIVzETsSCQkL85KK0dTVZwIz3V4CYNoGFV4/K",
+	"ccKMCkE3aXwwq7eFVCx0i6T29ORz9uU+C52j/Zew+/37P//07/+4e3brxr5f2Vjbjk/Y3uCtGjTyYsrb",
+	"GYmwM/79H/FcBa0bHql6IFOK9YzQjx7u9w2BFqJSm0snZ1DoMyzTHjzw7//oIsgUKBpc3Fa3GXllI1w4",
+	"la+O5OtcTWQ2oRrdGaEQ2zNInbDMOeQ7tIxL5zFZRTeWN/laGMdn+kK2gn4Rjus9A27ALv1KpHLy+iav",
+	"bFqra3oefC+2YmM8auSN0LzNLDRbIyQ7yz4p0GMr9dJQMFPGyIhiPKrilNut37AP4JwshfBhHYZBJT2q",
+	"hMITAUipJxbCEJaUhM0z7razsY4D2QK/mAq0I8TEst0m7pg3A35E84g8piuyBdRHXOuSQb8R3ActXMhL",
+	"oVZAbjRAFleuGUotqXdVShNKttxcv2nIsxdqdBrKGM3Wa7b8sw11UHRWHlOXA7DfcajEZcJB6jLiF2I0",
+	"0fO2oIUvAvfhCFGunXsx1HxbQODt0CYcOOyyn4Zz2aOeAeTjWNeV/TVTw6ZuWbdxPYpKjfRso5ipUPqF",
+	"+34F8G7kqBQvzU3Bob4XjQDMcOCTmDKunsv2bdIIwiQq2XYt0Da8ReQZnZHN6RI1dCOmuq92dV9vqYK7",
+	"xS1DQvlml0GMkz0rpcrkjDv79UwbZBdAp4mM65Tnwvm6It08X1S+Uwn6Mng3WOtVoCErEw7ukLVcI6UY",
+	"z40wzMyzSeVJi/b0g/39bp+dCcukDaSuFMsY8QD/7m4tILcuoYjVQFTANeLu76iazu8GB5L6/bUZ2xdr",
+	"Kb9NVuSfGPQfPui3XEY3+3lsdOlUVn0H/oOq23KuiD3kCkL/enrcw4D+JTDhoaIsnJ00ONq6lD4xUjAu",
+	"K/kVIhRyp7reug244AgA/FaXljuBzbvreVTv2g+3v+RACiy0unCelLEblp9Uikj0mnDQgJOscwdOlJ9+",
+	"8unBjek/b3Vjbq7RWnOVrtpsYNoDjRLND5IifsWBpjjaAJTmXMRIN96OUCc3K1jTX+kadlS5/S5uu3ID",
+	"eWq9U/y6NZLCk546ZQv2B3Y+YL9n53s//3R9xNIadpN7716FoNZ0qOrl4N/9n3+6/vm/EQTwpwcff9zb",
+	"h3P5xRKCYgeUiepclBe//MN/ec5L8GPObUJiBAaeiryboLRGAWZqqJYiOA9ZejArqHs5+z1orCBQKO/u",
+	"dvbg5/Vu1v3uvJvU0IWG6o88YecJyxKWf3vE0gcbVPHdRcKiYgm7+PZoqDhINbFuiHGLsB8Jc4DqDsej",
+	"ocbK2HA+GNwXbEBgoVKNC5JxE3Zee+eA8J2nNVi3yT/A3ZecPs5YzkoJxyAZKvdMsBz2NeBqHDG02ZZS",
+	"+MTH59BxJS4osg6q5a4Cqnmocjkeozc35r/qJuyi3i+wXUyFBTT3C/YHtudn4uDlM0Sbn+kr4TYW//mn",
+	"6+/O3fzBhIvr2chwO6fpCB919nDqxXedX/7pn89//um6C8HjK0qN9HhshKXCC9iCK2rwy7YYfNu6EYll",
+	"onhxf5wMwniCE0S6t7v4bj9NggsfhmLT6AB2fiq4anjhUfU7ifvDnaGdZCccHMD2ncH5fYD/xcoIWyEa",
+	"4NIDN+JN7zAY3TPflejXC98dfPZl1Cd88ETPy5fPwi95KapfL11H8cfj69lZ3Nnlhy9cf98kOxG+wbKw",
+	"yg0BqhK2QRolZkAYsLEsrChN4kGFKqfBSClNIAOFNNZljmHjeYk3BHxIC7QelHgJi3wrkOIXM4HsZdtN",
+	"pVnJveHQ29qP0IMq3H10b8FNhShJmCon/Q9pw21qb//TW/hN/QdUZu3tf9KuzXqJ3O+2gBy3iMLKpYH5",
+	"XWHz9W9vE9gFczCd2RUwAeN5UYxWCu+Fzl6v6lPhlYlLpUpd3BRTv1b+o5rjvvk6lwcV+hhN4Y3RO7Sq",
+	"txB4Z0LPtgn2x3ZuHK+rdXVPbyfu1pY2Oij7TsiKDkrLwrvFXQuSih8571EAPGo29ODjekODZJPNEpRp",
+	"wLMZu+NRIpG6fs97LuazRNFlKpU0lqjLhjjwuhDHoWr4dVpVDz+/PD6uWsCv663UJNaDdfIqhqd9Pxfu",
+	"NZDObfZ6mNbWnRG8KzYJAFAu8kxEXhl9lqJ3BwE7wC2OTh3u52EjMyx6YOL3cQgF8EZQCJ/5WApiGiCl",
+	"apVEPxXXtuQzjUHG6MdhhKW7TEi4iiBCgLpTaErs5H99nx5GDVeGM122GraOWOp5Nwhh4BUnhwEVzMPl",
+	"wHd6VGptQZLyg1YNULqQItf7IoJPTMlVNkEldJ3BPWIpn57Li7meG6w5PQy5GmKcOwe/W0PgwepQaEct",
+	"d5SvqHs0VOlcOSeSkffSoc5WLHTTPwlK0YIGTxpMqIWzWj3C9upcX/ewNqqhkiZAaIU8E36xden3Qtgq",
+	"lTCJR5VnE2GSoTJ6eXZpDmUjmVG0LXeSnWhXIttX7aOdZCdsmehvsKD5RYc/G6sMVdZWCc9pc3pDw2Gq",
+	"QgvVk80oTnVUP4Pyp64T1eNjaGj58eP6UBvVPHvxqO3hl7WHX1TTED3Up1rbp6qlI35eTmlaqjdf+Ql6",
+	"Ws1PYwDH0UQ1ulW9+rZGum53sf1l+ieu80qMZ6SKnLidd+ndAA6uS8c0EcuJmECLuWmOBNT0bR7lTt/f",
+	"Ktadim4f2E55WW+zU06xZJvldUXcfRug3ajheIZFGxPRHFzDhORHcAMA3lLHtz6J67yY6thCpLfFO7we",
+	"I7+U4xTvDiepBjQkZ2f2bkbw5Eq3X6Wd5jV8W3z12E9xg529YeaGyDG2QzuIpXV2Lt0c7rlecDWsxhJZ",
+	"kJEn9FodtP8uKhPBhbW6alWuxGCt1+eWSxXQo9OxFEUhynZs6KngarRl/Jh3PWyzjMM34AUSQjwjiGFO",
+	"sDj5zakXGvkPl7ltYHSuka+sjDf4baubeOIOg99fEbwq7HnPot4FpJDMW/CE2tM50q3uAYnDpDbXJDoW",
+	"yztiPZFx9+h2ROYvyVl4vYvwy1LMuA81ErNtA1sV44X8fq6t31MzXgplyZY8n4GNlhNmErvUxXwqEiZ4",
+	"NnE/gFROn1VwdVYXokR40Z//BWLEMssJIbEFRc61O5reZSCSr9TqwlW8ZQU41LvtE1V5yx41NkQ0aUuD",
+	"jTrfaLR93+jzQkxbsLWenLCHBw8+YTP6gpHzn1lewVW+tQhie4XOjaX2aIbuqkXenDTLpKJq97hakcri",
+	"iUa4G17InEmw17ndqMdjsmMyuAfIhdJlVN8UQROG+gQKt153qkIOXGZc3ajYjNtJ63DcB44/XVkBwA38",
+	"Xc/JL72nOVjjNYMldj6AJL3DMDl7MBisTCg+N+3tfP7q1UtGH2AmjRp6yINa7tKDQWtyHittWxrLs4ku",
+	"LTMEWBYoids/UEtrV+nBspLpq9OnXlO/8KELcWX+zp+X6hD5utdCzER56L45dDsk7e/UVYU3RfDhWz/G",
+	"CNVpjfdrbeMc/rDhAXnlc8VLy85LwV+3o7qjbkmU7eUbW/6QcfY3Zy++YC+pEJPKagJc1vkiYekugiTv",
+	"kvVS4T/C/cqAlrtH6VDB2Tw5+xrZ4ZS+kO7toSvOp8J97kyZAYyVlC43RUrSuG6a2QrUdksJ4rId6PLk",
+	"a9b5XbeVeWoDKUXUBvexXcwwPkFFvJ8HXLHsupI2yprfg2HjgttbCgrXt0lge72T+PG3zeqXc14gg3Im",
+	"7G1CimKnru99XUhLCH8bUxQcOaKsRJV23VY+r6K8lBlExDtnkJZYRdLVFRswTvPChjHhzeGBy29RVpoR",
+	"mILmpbhFYdDtbwhn3Cz8pmWhTn1N24DHxwJrUm1kp0u1uqZk9Rp1DJ/EzCmVZp1TSH+c0y3CF7YC0+p3",
+	"GzJ2iRvepz6or+hbBJjefRBl28GgNHbCbIvfBtrtFjcfoA69q1KifhzoKD4AX7qUXU1kQVQi55afc4Pz",
+	"xmn6zxfoeONBRlgHK4HDZQCp6MHgvssMdSpsuegdg8jXdMSrGnciFza8hRsDTMY3rrz//QKrqLDOzCpW",
+	"hudeLjasM9HWj8t0WcEvek5EQFCJ3KAF/kIzq32w3FhezEt+i1R7DhCpWsgbkdCXEYm2ASMKDa0HISLf",
+	"sRV7LgLi3vaO42Upicptgf6/pZaUXJIg/39dbbmNwdhzRvWtgqzKrMmqEH+7goWuA4638L26bH3VWBbq",
+	"UPi+UfMmsInEmma8WBFvMFeYK56yEq3p6+ovVutv6yWXGos7V1++JOyY9p1YCG5Qyd1GzcByjS7lvIjJ",
+	"l7PHxb6fR0DpoC4gzJBuPkMmV5qh8rDKyCcQVFxlZSUXDJ9Op4ovP2IpkLuJKPJ0qPxNU7FXHqA5cTUk",
+	"bK7G0lKwpS6Zmc9EaUTuQjv5UG3UbN8Pw+MKuqzTGHxXJ7bR3BDOtRv8TrLje74xQcEWX9YqdA9P43rd",
+	"s29C9biCDeq33TGVajQ3a7x+iVgjoYb1VPpqBToCvxgZkWmVr/C2HvOSNgQ7FxMZMspIEBwxespHiHNj",
+	"KSiqHik5V6+VvlqBPr9WDVMBLi4jKErLLoQl2wCOtDNXCHoEM57AvUUR6iRPzZXLwBLu7ISy1/HuCtqF",
+	"a9PiiOcgY+Dq6/U8N9DDK3teFo6F26uJ6Q7Ja1OIT9924pe4/fiTV8DXPlJ7S7GAYnO5o9+wnMqaQ3b9",
+	"f/zPA5hJVLbCCZTR6b1nMHK3G4MTw9+xrpH9+Sd3IIeKT/VcWXiSlws2Lrnz3qUsMZbSRlaXCPDBUH/C",
+	"SrIxJz5Ov1gCBRqqqgx81IijNkmNbw5css+H9PSMNmrITeTJ1FB5JDJvdwrNgPRvXG6OBtjLkpzFs6wU",
+	"ubT4PoHOgkoVcaBVjqE1mUavzdKAl2M0RhdnQ6TZBEhZED9aExhldlVmoNvZeymgebQSHZzWDmF/xyHg",
+	"djPcw2YU/galgpmlxasRGr81j7PS1VHPYubyz/91J9n580+bwoBin57PCytnxWIncQ8eyUuZk8vDatB1",
+	"f4y3VR44XzEfIO5MxHq2EVsU1AGbm7hbxOhmreHIbLXUZTA8b/JxhYy0ydfzon2xrbhuX46V63Q92LDN",
+	"68FoM0v/9WCn+rra182z2HbywqSFdffz4obmhr68JG2AAdFmuMFbIHZOWUbOrvy3AxR2x4UXBRc8MnuS",
+	"wiLTZUldWWGebyLYh/9Ft2pv+d3SkpzGxr1mcpLKKuzR6N4qiXyYou18hbCT88I+vhTK3qHvzzb+4hl3",
+	"bOXNZAC7eYLfb5bl6WYEmi3F3SVMSfL4dqYAMcomoFjbnJ2vRhUqih6isHXiq8TEbOJSgnuJ8WLYpviI",
+	"kfC2IrcyvHNijtPaIRSpG2Ha3yTH6lr0fxKWQs8376+nO26dwjJLZT8+iA/sw8Hgk72HD/cfHHxyMHj4",
+	"cO8m94ot054gmzla4ddixPfruXfUkgqAQJMKJhWTTaMjMvJc4rKJf/bWw9vsQoCOu0SyDpSSTmRzyZZ2",
+	"X5x6IaxPPE1RhpW1/mW1c7ziAqif/la9IqozHdgKp/Bmx8nS5B6ytJyrPm1oQtKaK1yCoaJOm27isXdN",
+	"n+d5yjruF+N5TvIDd5i7KSWocwmkwHGcHsTKgxT1uvQ8hNk3ItOqLoW5w7b9pPVD0qnl+sPDUPmmWahg",
+	"fk7n6sQ3jA/ITcYc57l/UuWmgl9f15vGZ1X+lm/DQj0RIn8PyYRxUbflJOmmeye5hNdH0LVGysHRJ1qr",
+	"KwJxcwZ5N/Lbph92q7QqfgNVGWPUXOhS5B7GkY7SoSNXTc/BxAVhKk1x4inhDeHfLNPzgrJ2nQuH2wcn",
+	"SGk78qEUpAzsoEhMmkqHKpHXclccsbTh+hXUbgsITE2lGem5NTIXoyupcn1FlQZM/iCbI7Sgs6BgkIkr",
+	"RkGLIbkDVXLkOoHERBLdBr0awh+kBtwxVCZG/nE6VJ0KSVh6hGXmP6TymNqiqveIGSGqypoWm7+Y4ASs",
+	"3Ocpby7xDppQ6yu0k+z4QY+21ofCzNXCG+hRLbTBnfz6JEVFKaSh9uDL8CAKZXAPGmEMrsFGCAM9bQtf",
+	"iDoYhy5EzS8//kKfuAn1v+2X9Vml50/PXtDUfuNnlp6fuflt6IProvW2Pth5M8Jv7+MbA/zQ+N8oFvsR",
+	"rTJvQGO+dDtJ89g4W+olHR5F7vKVJ2wWEotlomlIgE/b4DU3QIJzhSHZOoLCtSO/bRO563p887UHDT/y",
+	"X6/Rcn8RgYk2Ac9u4PwbyxX6FrGIN6TjanQzjscko1BItbkxaYAKj0Nh+n3qqnhTPbhNKNBdTP7b5nSK",
+	"MkwBW0oDbQD9+OwMkPIUDFlpf/Vata7KvBBfS30787Nj+c2abPBwOV7q4tJr/uVUbKn48MLZslIQx9AS",
+	"FFEYEXixvd6+YVe8BANpQkiK/hVVQFr4dkOWV/PdEAlmS13APG6TcSao0XAQoVwSTWr7cqmtsxaBDMSN",
+	"4/XaSNttcsVuhYzpQMpku1X/VmaFm8EjCQTrqjbyzQZHG3dzsWOu6O5u2aS+wRWhbhbuIShT66+fLhUj",
+	"QP49EdnMXG5KHufqCbYObhY7SfX75OxrJI+3zYq7efBDFcyzbZkt8ujqlRggb3HdbR/TeTqPgjlbnIwo",
+	"LMbDrq0gmUvwbCZsDFjXvAkYTF52m/v+1HDkNhpWyFxzE9bEdml2aylxwwqG89KKMBl3v1qfcFxvEom9",
+	"LuR9KC4qCrJszcB3YJWtcs4kb09oNj3Mbau2+QRi6+8hPc07zlS9bdzu+uwNSymgV8zebbFFb3E9v0+C",
+	"HdPfdaUCVtPbENeAmto0gS1ROicPb1Kz+zTUvQm1PkFvd8fqrCbb90x4aSjLwJSDBgp9eiCjKdu93Nv1",
+	"n/RC+W6fPQb3+ZCjioe675nKpQT9lUJiOJaGtkDtAzsk9do8X5qUeI1n0hLfgVGEIiePI1DUSMUoVcVM",
+	"lgvGLSB/VPuRVIJVMedBByVcACEWFDn5s2AfEfOjyuk/V4UwZhkXW9oKBhuVZBttk8ZmjtIHb4Cf07gd",
+	"lwm3ULZcxIQbR48oBRuTcH+dtuzjB9uhPoSrds3FWg1oJUkKcATv+EbcFviAjvtq0INtDHtLopczWW0I",
+	"ZVBxdndnPs9XpvnfW8WxbpLANV9hmI3cFMLsb1DfzQxfWw6jaHRrp/Mtc4a+26RQebkYef/C5UV6VC6A",
+	"VltRRk6I1vv2MUQOzstFz6Wuxmwit8QH3tsosJhcJe88XpmqDX5Ha48afHOLAPm3z16arMo4t2QMojJw",
+	"nWJsmjM5BZdU1EvB2zT0KG3L8u5uKpS0CQGt0VhQMcVZJW+DBBBs7eT42mLMw+fgDmXQk9SH50vF0lpR",
+	"XMO0iyF4lK0qCu5P49VOjyhRvS6ZIgS1LXfuum213KfN9tXb5E9bYvFuYUOom/lMuysXsWwh129lTDwv",
+	"efZaIMLbwiNn14MQDOs8Pfl69+Tk68pm6Riwh4Nf/uG/7O0N2O/AB/1813O2Vexk94j2Jof8pxjOYBLP",
+	"41FvmJHe2IE+9QG9G9nGyNxZgcCSGvuoykeMb5QeKj0ToE2txW5gYEWH8i7BIhbCirSLjs2Fxqa0Ekmt",
+	"Jat1nx1jl7GrQ7U3YMEZQ+WMh7LwDS8dBwlZlDI9nWrFZkh7M1LpPn55zPYHg/6nPVSo0SE1XWJ4OYZY",
+	"Z5MY/g7ItKMDsFAQeB9Ms22e0X5cLYomHZmAryQ6VkGiA4SbnSsYhsj9LohMw8Ape4eQVgV0teM2Zpwa",
+	"KblrLOb+lshiYcS1nrSdsRq7dru0+m3Jeitbh1BeSnk3eux16SfbXNbXoVMdt0Lw1MOWLvilwAAojJpA",
+	"STBFgJxbQ0rdBhw4do7c7OIljrr1zvWpAJpR9RnCSZd62l/P+b5aBvByGdpz594rvb8y64RD/AfXLk1k",
+	"FEfS3ZBpXoGt9aqOp4VfkbwbecCAb0iLj4vH3qrccLbA3aoKrdbztVm5HQ2TOUZQkVIAQcvGQnhmRd6x",
+	"/6HnfKps6zdRp7MToOF3CBN25zhfN6UujyMC34UfLO3rm8vF0Vp3J+TducvsRlo4z5+dikyTrWEZF+02",
+	"mSRjj+0bbIW0Ds5JWlOmaFpkH4aItWxuRfTMbb3Br06+eo5QGV536O6Ze6ZBNSlujRI9prVXALZbnx6X",
+	"/TsA+CKzJNXNboa3c+etK5liwX8zaLdtQOOaJz6Gkav7LjdOZsvqb5y3LOZm/hKVY+sOZSt47Fb6MGrd",
+	"3M6csa3mv5nF/J0h5Z5lmoCoIrdtc1gBaODUHMIGDxazw+C4jXDxG9rlsaHTuTIeXIMeUAOnVD8+QqOV",
+	"CQ7a+OyYGoL+1knm1k4hnl+YFTwTzCn6ncXCVd2CyYNC1O2BICosrBacK5Kl27NJrAi4a3eqCVWtxZZq",
+	"HhoULt/FyFbcjT7QaHkmuDGrcmPcMEtOdeCRr7YN/UQqEM2eixZxHWrUv93kkiS/Jn7GXYc1ZAZXCl84",
+	"6fmIDerOD8uzoLTdLktIsuNUGlt2z5Xasns3LeFKvjLwk+2oE8Gx2jORyBptSJPcia/DTiz5FMdUp2ph",
+	"GdktbKClMCI/0dWO8OsVDmBSUZlWOl2l2m4VhP79H/1aUY7yzul+14Xws2cvHrE/VAnRkWt69uJL9ocq",
+	"ZTmkh4Ag0pHJKVMFO3vkK4zR3pSeIkYBYmZ1MH2QnWgjhgo1pbm3ojrkLEhCQQhcIzQYUvVm95d/+l+v",
+	"yLzrKoe6MUSCvl7G5Up8p2qps5iczjDGgSC4OgJib4cVpE7ID+4BNKgk5IBgqX9djTkqkAxVNQtVN/UY",
+	"OVTXgyOX0ZwiMbxa8pBVcxnhtpRzhVgI6RRiE3ycrEFpeqpL4aJ4q7hZUcC8Ls1fPXoC2oe94xrE/D21",
+	"7+kW9wPd9GCE3XZM9VcPPoOWzvLas2fYJOTYKxpvTl3TZ+SZfyYvFLcOZG47XHQrlAXPBH8Pr04VWyJr",
+	"cA/TvKI53pVmxoKOcoJqAo6pu1YkX/XNmQnff/Dxcmtnnx/39h98zDoTcV1hKnKlFQIlIsCTHkedQUdU",
+	"eaFaY6DqLu8r7tFNhNLVGaSmXMmxMHaF5u5lKZV12pIEsR/RPvTVqxOy9WsYlZXwknsojcl8yhXCtQA5",
+	"ZBhsYCb6yqzyd3XV1njNwEiik7dDEULZSZ7LQtrF5vuV9tVzaqTiHhsvjquGlsvUG8aoZJyX1fm81qpD",
+	"YOFHMl/31qPALr2nzdIqu3/16mRzaTzUM8JFXOF+yaeENsCV9UbBgp/fM+S3/ie0YQA08v379x9WphJ4",
+	"fg/z7BsREBYJAIkIolaCapCKIlbJDqm0JfM+PP/q1cmhA0WCIrWNyniF4sJzQzjaUQo6SD73w8GbHv2x",
+	"X/3xyv9xuPRH5z/9+Mff975det5tTVcHvR/BOFsXCWYiL/kVL9bpxfxXaisVdVXqfHGzBCDznfqeivdf",
+	"EpJi1fZzdSLj7ba8ZeJZWCKNyRJpbhKbFcwMHb1bpIwzvuwWegNf5Ebnjqjytf1+++CatwwCCj3xIThV",
+	"PNDSqyg0aLs0dBtR7C3762ZuJZ2uvw/k+tstsuKthW+o5+27MT4vnBzfdjUrrRsksgfcVbahm8FAlmFj",
+	"gRN7jz5RlaqUWl7Wda53Vai7B74H16ilSb0h1Cn6+H8Q350kRKlrOxHllTTkzhO21nvNBXJXG+y5c/3d",
+	"2hl9m7AvunlXB36tP+35qheUW2c7sLjbGMfF9YxjcPxcZaK0XCq72LA58ns2WzXn9YGbuA/75ftbKLOW",
+	"zhW6HXZsVmWM2SYZWS3LTIsizfuCbzXyUAg0JqtMqhii31yK+jacd9AJoLuL/1T6FyhCWjsR8Bqj8W/o",
+	"J2Dm6IvQ7i0Sct5suEHuHrbPBdA7le2Szc7D+bXOJG2TaIi1HVzfLJsb0dr2ao2DcrjEIcyCoI2z1yOj",
+	"K1uhy46KuHK4yzdEMHd1nvpWdpLw7AwaiX4/o3pb+nwLtrwWM7JVTIBv9EYuo2pik3m/ZdhRRZs3u9Xj",
+	"q27pWj/197CL9/AnHtwL/d9VOIp1ISA+jOSe6cdXwjbczdJdcUd+rKvuhhavqIr43DPMl2NROfaVy73f",
+	"6O4t4I1/tXvnDvYITlZ12l36T8wYFXaGNKyzRBEYJDbo9qPbrpmT/F3dfrFn5bu6Czff7fEFdeMM1C6s",
+	"m3ZtLaMbT1BFJngOLN9XeKO+vsVe9Vfghn6H8PU7Iizhzl07D+RheFRls3FJj5qt3Jm3/NoLPjrpbZfA",
+	"K4dD24DGKIVgVlzbKPXakUOftqUuwMmp5JkVJVCqTMwss/w8YYVUzo0QFhtzCPALwUph56VywOR1ZUJd",
+	"DRHrKr8bDq8Hgx7891P4z2fwnxP4z2N4uPdkOLz+5Mm3v29VQ74C4eKWYdy3kABug5CwwiwZfRCJSdIQ",
+	"kjyzOoT247ZSzGFzVVhCm1uzV2rpTaZn26gL4fO2BrBP7eM0IiuF7bOzib5SDI2RWmXiiEnLMq4cQhwm",
+	"iEEn7w191KjFxINTu4HUeNHWYwDFbskAgQP/CK2FpS5WkAf0+5HGYmAzXe+FzGCoEy0zgYkSjEFYfFpw",
+	"8PsH8ylG2FQeRnSuYqci1vFqh4P9fWQPgORI2+2zpyHRBgYgUzGYX4cbwkvhLHy+ivMF2aH1vOyJhTCU",
+	"d2459tYIaxgN3IhiPKJWVoUmbLXjpUPFwlw/0FEcvdvsOaPgjE5Vhp1LTGzX7bNA4/FjVw0yTNEEosJB",
+	"UnIqXBW4AaITBO/CjA7uu4ZRpRP19J5BzRB26WBwsPqrcq6YLmnu++yZ4JeiuhMah5d1sEOJW7TE+V6Z",
+	"zV3CV8U1399f5/3WHuTsicMdcGzfTDRMwhVm+oT9NjeiIm5HaAVV3hmd/Pmdto7Pc2mZLbks8AbWV6ot",
+	"xeE3Ez2tKmSAQ6guYCMdspQMYi4XIWqnfTJCcMqvFms5W2F/qB6RhwI5O1Tf1nRYfi/QrkurvZYOFfWH",
+	"F2gQFIUbNnXJAXP5XWfm5Hc/VEv3ZHJ3FLraEwfbbol2+H/XkVaiWgp1l4r9c25E4XIgrQVKg3Y/8x/f",
+	"EjiqjoyxrC5DR6ENMb+e0cexy1lLDlyr2WshZpglWRKpy8lrTBpmYUwAVBz5cjE/IYmn7Z78c+JBu9ux",
+	"AyEt50YT/DJ87ZOPbr4dqQIo09YPW85V5jm3xn1RzkWloyfQUIZRglPKycQV20sGg4GfESDQIPbh97rI",
+	"hbHuAwTZgDluv7YuPdbdNuAjMUTejWHxNTiGoIarFiHMarTzw8ardTCesshNbp1vdv2MvAWc31tB801h",
+	"sm8XsrHCLdK0bJozF9rqDTe5uJQ4c6yj2C//9M9sb1VyynDCbhlqZ0QhViADQHor9Ad1LYQjLDB+VRux",
+	"AcuL84eDhgmJMQHjtleu/8v4wDtnPGis0OgQsSpyL2xRxh1doihWE8PQ+UpgbUqQEBtudclOOTLfzzml",
+	"1Sv0po529Y6fuVbqT59GbdbfRN51S6/OQm/qL55pcsWLiNZ7QGbaNh2FAIrfTjRrrn7zwm+yUIIQx6Xx",
+	"MabjAIzpE+bF1HQqKSQcPzbdVUz/KL6tlz+4HRzXav1L2JP3jNe/tEXTUmotJeAmden8xtImcNTDRr1t",
+	"XO22YGHNO6Y967fx+K3hWw+UGq3ZxgJCA4R0fVB3FNlVC+TyJqKQs7QCNqt2YX0P1MbaRo9wG8eHYz6X",
+	"+bL3Gu+Nj3tPvv3h0ze9+OfBNj/39t+06oy+ao3DO2YYiYc+zJnOQzr56cXuMwiwm7t//zibTb9NGzou",
+	"J3et0HD9n3r/529/2Evur+jP17yUXGUCcuoW2yZ3xqy/e7vmu/2UHMEvXW1sPFdZHKkQPCbOHh0yUBqy",
+	"dKavRAmJLEznuguB04Off5ry6851wq5HU6m632V7JFjjT6zGTHlR1BzRCd1/qGqOB0euCdgVvATvbNZx",
+	"xAVUFKCy393rD/qDbtw8+z3L9n7+6boVbWHTvFjZ3oYfrgi4aRwPnyFlsINVt23qryuK0MiRigjMDoxD",
+	"LSKcMwLacKTJOZiszJwQ37czbgwm8ZKbWj5d715SQffrCZanvlcZPt7DfbcaYOE2/lxvi3GwUb7j1ZFc",
+	"VS7d0axt/X/3CENJBj//1Bmj/ge4UBcp0t11f9zyGsIK23AIo1kkveo5h3ypq69JVmptIxRsohO37Nb2",
+	"ibVuuETD7tzAtwVkpvaVgGv2x989+pG0mZUK1GcddQpPj0+7oQvIusi8m2PvbpzLOwvhr0DIlzhGl+EY",
+	"p65CEMLkocaBdGykkI+4CEcxb3ZI85t4OZCwfq7ilY2iD93BjLDS6/zLhn4p8R57f4jATucb0se1Co5T",
+	"uDTclx5woIFMcC4w8xXcquRV12JAjOTmywa53/TwLS16IylVczg3qCWWzvXy1SmVtBKwCwAIi7LuZFpZ",
+	"qeZSXaSscwJPY/+AuEfxjekqop3oym9+dYYqn4ZqahsmqrIxrlv4Ct1mI8XD3lxTU1/bGySEehNbLO2d",
+	"IByvAOgIap4rDuSbm/l2mP7rIZu+cOGctc8SRhYDNghuxhVaB0gOt4V0XJFydLCGab31rfle3ZM3uQO8",
+	"h2K06m376hsMLD3hKpe5z4S5xZ7KL6URK7CScBzCh6xmE63NKgA20titrcZF+LK5ESt0zlN+7aJQKVoW",
+	"YobKFQqPgpcXwliGn1T2KMsLF2qLwWRYGyMQubnKUQkkDcv8bMXsn4NNU9pG4sVtNLPaivbE+bxqGJsy",
+	"r+VsRnIOXd6YN/+IienMLmI3+jYD2Hw64udm1DY///a//fi708c/+lkBPreX8SKbY8avQCHMEvPb1rtb",
+	"zkKIuL7pkHwTPmwekqqK2nBX7pOwC5Owrd1qrD43rWAGzwQ3tkfaWeO2k+mDPuH6u0H/Qcp++Yf/J/xa",
+	"fLefute1YAtgovlQoRqBGJAmaBHqFp3eoXNcTIXMOROW8aKfsL/pD9XJpNRTbvVF2WefsU8+OWCd/cFg",
+	"v8v29x50+1614fsGDe7tgrrg5/9G7tx8qJY1HpE64xpUGLTNGc9KbQydFcOsZoW+6OCvoTp71A0gg/C4",
+	"Noxu4vI2wnipPIR3Xil29ujIxWjyoaq2lR57YoI2Kdx4FBwctCbuxPLY3wKQ3NOwG0Ya18n0m2HxbvZN",
+	"3zfiKBbhBESb28ejBp2NmU+hb/wcHaoF887fTJSlLj18/VCtPEmMTzWaKrURTCoHR6V0jQBNdYk5Fbli",
+	"E16M24hWnz3G6SAxlOAp0NOkOpuGSRWmY1Q9BpD5wuilCJ6xvMbIElOBIAB4A27OkR6PpoKrlHVgAUgp",
+	"xaagcDPkLXrIvuZlZwHb5t//8ef/9vNPP/5/f/rxu87+v/1rN2H/9q80LWjrgOEUivYNg22jFSsUfI5U",
+	"zREYYkthTinbbLV+CZNWlDit8Ipx5qEXWCng3oiyaPqJ+bd/JdTSib7y5FsYK6dYi1QsVVrRoNJunz3R",
+	"JVsepjtKQ+XPEp7kqqewuaWlbe23+NmjOqaColBXRx/oL/d7H/9dhOcL95ueG/zXQTLUlmRDTjxQsS+o",
+	"C+H3U3V59n1p/67xbOn3fkuh/9h4tvR7qVDtgUOACL9fwrhejJ/jqGLK+2IWmPOtMJmqlKS+JuZoQuLI",
+	"iRfXx7Io2jBQSW42gDqxQSywx1F5k+zUaU6bDbZpoqwXSGpNr72X3OzcBop53RSBv9dYiiKvHHQrd183",
+	"b+90whqutgLhWzztbr8OlBA5+cD5i89qdi5WXS4drrwTHFE/X0pp60oCON4F5N4dKvyYelEHVGFpNOpD",
+	"RnXTXCFbBR8jMaA0JX3mvKXY/UPG4Q50kVVXuqoSLjatBMvFRSmgz1BWiByynMACPHzAfscwDy0zM64M",
+	"DIE8wvB+gtX6ZNANTlKVnBSJR/tJ26Zc3mgBjOB24uh2oeHvJhZ7bcmbI7NdzcvHEH0Xsnkp7eIMRkIj",
+	"Phe8FOXx3E6W93EKj3Up/4Sc0SH7DL8lwThDHzfvVcfQGc0c1lzlEpY6VRFC51VZ1L2fK3yB7pEpZUfG",
+	"W4pSCkkNPnjpdc+PtkdOaQ74B5cCJS3sUiVMTKyd7bx5g+bqsV4eErYPLlmiJDBpE7sAQufxzufnunTG",
+	"m0jrFFijBNhMM1S89nopuVdCph/KaOMYzlr6aZ5lYma5ygRw1oXMFoQybATMkpcuE2K2saqEzQptTeLg",
+	"kGOYYoMnb65eK30Ft8aXxz79LVTJVc3xcqiG6qOPiDGjRfKJtrklLrf/0UfsOPSPSWD3p7O5jRC6iQfV",
+	"aiwv5qXIWQbLXkruoUt5GfCgDINjqYh6zObnhTQTkbOLucw5uohjXdW80+TA2KxTxxAm6wVwqc5vGJ44",
+	"hvDsxUukYkM1K0UmcoF1em2qEiL3c4Fs/fcuK3Lu3TZd9iKnbiUw/6GiBXVpjtwsVzJOKWaCe/9mYMy8",
+	"qizF2f2rv2InWl0Khc+GqkeISHRNuRD0UjCj+GsxyrDVV9I/DTgznZTk1EMWNFwpEHjGeHGFC1ZKawOK",
+	"DLGZ4ppntlgwI69DihJesFxe4K5lrJPuD/Y/7g3u9wb7rwafHg4Gh4NBn3RS/yntHrKX2tiLUpx9+cyf",
+	"kqkEiQpxbUzCjIZq6F7DD3KHcWMqUJsxyOHOvzs3KLGHnnG8BGRhRdmHqamUUXj+fJUTvF86cCy9P2RC",
+	"zrWA7V8KBvYlRrTR9NmpJq942OuzmVB5D0WykJe9w92WgFPGMM0+nhkWkvNTrSTxk+HIXTeGpTJPdyFJ",
+	"QEr+5lAk55afk35ezwzmyGJs/7sH91mP7cEsuSnKCimUTdjf8Et+htSISUVIcYmbHjsRUz89OCWQdQq2",
+	"CRIUmQt+CF4jlLmDM3J8l4aleJOmIQuEg9qqwPKhS/BdZSHxHxsNpwfYqFit6iqtEn35qpVbckg5woM/",
+	"e6ArmCELfzutKBxajrNKpbpsgqtSdYnbFIf6Bc437fyxVDCyp48fP+598uCAkXbG9On0uCiSjJflgn3B",
+	"v0CwZoVlFkd4KpzDEy5RrgXpvsS1NNhrMsXjy5rt3ZO2BNgvVtcuUV4H74Rbam272HtQF6VeW8CZEcpK",
+	"JQockeM+GN29PvqAOeJMRMCwTtrGmhwyZE1S4IgYOw3gF64qmCSXVIIDK1wUuNFQ6ia5H+YvIyAi9ETA",
+	"1vwux6ulhN7mxm9kaViuM7oCw5zRvXkujtzuNcxM9JwqoggTeaF0Kfxg7EQsWK6xLIwycXlHCm5FyRx2",
+	"v2E8z10JWnokhHoc3cIm8fenSRx9N4nX5ODt6POElAJ3UkU7Dtkes5p9fMCOz06ePmWFsFaUJnGkD0un",
+	"fWA7RvCfQ/hPL01oSLxEkcIJ6lQU9heWrXD9K1IF8vdXSiKgN9TsAumgtiiWjpfCLX/u7wWwFpmhOmaF",
+	"NNbtRq7YRamvwk6jGJJO+tePX2GaQKJ+0GH/xN1uaRfT6uG6ooJgxi9g5kDBIhWjVGKLQ5jsknbloRMC",
+	"UtaBb5mRfxJHxHxhh9DYWJOdXM4gZM27eMxgIrN5aXTpcB9nQBD03GDzwLopcW1H7pNafBtxNaVBYglf",
+	"d5NIfYVRF3gxGB89gh/jl0c0CjoRLoDDiqlJ6s1Vi/WFuLYn9LBLnZ5wM5rqEgI5WPXd59w8h4fdPvtb",
+	"IWZ+psJ+cGP9Q62Vq4kscAdWlTJ0658LSG6Dc0m7STH09E+jhezSEcTiUa2HqL4GXSLOv0vYcyGOPCnt",
+	"pLW1d2wA7mB3pFGhZGCiNZvpoiCeC9rAE3fsX0vD9Ix/D96hlfdv+pJfCD9jR7h77MRtL5kJlkukmUTB",
+	"zVxg7h/8i6RTCpdyC4g5fw4GA9z3uOlpWweXDFn6ZJEd7vCnUcJtpFGC3ey9N5qpk5C3rRjbJGKwTRfo",
+	"OibLL0QSThaeD+zSl3O4nMPgobJK/IgpYVbAKY5OMq3rwWAAVzQmdKIYtvR7qHI57CholYlmBkoAApZQ",
+	"1o2GqBvKOUNFvDmsdspKPbfCaQy2EMqOXSASBu0KFNKHygOtUjuH0JEf6Qf7EZfwR3ZRcmUN+3Gofuz1",
+	"euH/8GEs37Efa3F+P0ahfTAQIvyOWBObQy/hdk3o43gtI82zz4fVZa7RWIxkP7JnT5+fEWdWum3wI9Xv",
+	"eUQnJEXCUeJ6Um0pGzKn4MlKIl8p4F51mQnXfF1oZT+CaGUsH49bm21uSdBOES4dC+7XR8whBceGK8e6",
+	"1fc39YCkZPZjPegUho0MJnJx0PzcS0TUC2KVoY6helwTrpE6EbWgjUDXEFRP8h/p28W1FQou7qFqkcUP",
+	"l0JbP/oIGA6txEcfOVPAFA0m+ZSsj34keGVBF0Qe4mbJeFLSMbEu+48JzA187aXQQliBeWWH6sVMqOOX",
+	"T5lXbXjYLx/Sx90RqkYOvFul9Thkf/w2HaqOr+d+f0B+Y8YdCpooFCTgdLyAQvs4u1Dk6SOQ8pTIrDMJ",
+	"G2Dbjr1HfcKmvAAJDvaX5/5wF1zq1yIKTz0Y7B0R8yrzKMpVzy1oGdxMUYfw6/t9lu5OBC/s5E/AFOzC",
+	"PlzQn1NhS5kZlxhkV8+E4jPZX/BpkQ4VCsNK+/DU1E8cTkTXE6bHaCTyVAhNRriQCkXThwcPPmGzUp8X",
+	"Ygpc7Ix0oVKrXff0939vMFkJXbBDlb6k595mIRUNVYImOGEptmBSJxiTImg8FhgGTPwicjCcxIBznTu2",
+	"Fi4S6NHHDwd79A6jOQS04MBY4WPy8MbLNiRcNrv7u/XcKqyTDneGO6nHYcWLA8t3j6j1k7OvWSaKAppN",
+	"dwuphNl1xB7/Ee5XBtkUPSEG7iTFCvd6IC3mbDZZGARJhhqQf4KuTQTPBU4zPt7rer9019Anu571SV13",
+	"qnsb+kNN+1jY5UvIV0d3FLGACUtn3E4OZU5scEqdOHyai+lMW6GyRe9vxQKZPHIycBLTVBpKJ0k66Xjq",
+	"sSLSAEnjDf8lcdjG8VO7bqs998eDmYWy/DphVyVaHRczF5viWLQoVoKXAq7eI9o8PvobjF1F0XO1nQML",
+	"XQr+2jBOEe8+XbdjZDpceTEjtiz6S3+o4MwlFM9Nx5a+AFakFMgDyGqO2GuxQKnwYH8f7t0HgwHp04Bu",
+	"DNUwJMuiozTcCVhkqWM1RzJPj5xBcW4Eu4COWB3LbIWGLfyFJpldegG/kvyxoijYHWc46PhIjPS8QPp3",
+	"PSek9p6Cwz5n8fRpJVCgDa6zKAIi1X6N4TSOTJxy6/xJjbth3H2ACp7zOeY81GPfN8M6XqKAEGjoJxqz",
+	"GLfswQBkb9IwHVWh/mh9JjWOp34NdgDzoD9A/ZNBbIVu34+aK3MlkBGupsfJdxGlTZiZZ5mgJKq4PomT",
+	"gQj+3keEfz/Xlvub0R1WJ/z6rAOPXz1hecnHdqjwn54UdtwDpTSfyV7JrcDJ6lFp0xt8zDrk4FEZlB3f",
+	"JNUFSBcpTPEzEtccxXNeoHYiDOE64IlwWNMmiOtXMhfFAhmU7mFcUc9Vh3IbrREkfpF/Akks+uxUTLlU",
+	"5IGJpHCowjqCnS0h0QD2SqbnChIKNMobAc3Qmho2V1YWzumAdoY0TksICmUnoFXlX6JGHKkyBfrDU/xT",
+	"HF39gZ65uj2b3R+ql9xp2fFz/MttAzyeDro7PRW2XPQwW2NKKerR4SYPJ8UMlWf8aabdmtEh9TsmfO1V",
+	"H6QVplFSeReWyj3pqx28LlIq0mchtwRiuxeE++w4THk9DlxGrAO06uYfZxDPA6YgYa/8NODJnYkSLm3o",
+	"9yE7FxOpcqaYM2Qaxt3OQZQOwuRQ7lRJ6w886WuA5l8I5VwbMp0Lf+JIF8vApl+RmoaN30UvKQccii2R",
+	"1o6DTUVFGh3WoaiGBdNwgKClC5fC2LE1PdcPXXaB8IZf6JQSqbOwHmmdEotN+cyFUBXzwPyWBMsuI2U0",
+	"9MhFwh5WdmcT+039539mqfdMgPt0b/e6euqfgKX2l//8z0OFD/fp6WK5hv/o3lRP/ZPv9qNn+2hMcxbg",
+	"UH4/PQoeIAezwr15ouflS4xne1A9k5fi5bP0qNJZUVxiutfbN+4bCCjc20eV017vfu3pfXy6X/92n749",
+	"7R2YdKjC49MDfHzQ24s/PtijigfXcb2D6/SI6LxpgG64b1zirCXToqujyqMFXzTENpr+OLFWehQM0TPh",
+	"JKr0z//V1fZ8Xlg5KxZQ1Z9/cg8fyUuZi9QJH1eydFsImWOyyODppWMgrRHFGM8O5PQ0DkJrbkRNjwun",
+	"w3hllIHVobyhCUtfBgmWngyVG6X/gH49vhTKnkDF8AzTbMJJBVNOUzE8QYskbHifJtprzCvmKOOKiSk5",
+	"u5HsgWJYjUKYK2mBS78UeNbEFC7tmrIXPwN9Lx0yrALRMHjQK56XXGWTYC/DgIJCXwzR177kmU+9iDfs",
+	"Xn+vP2AdZOukuiDwMupQLmYC9UpaOXlvIWwXRYYlfSlNCWo+I70XKqtToqdXQbeJqT60qoxdUCzHOemz",
+	"pm7W3TMm0geixu0O1EyorEQNO4Z5Oy1SF6snwuvNb1vbA8FHA6UPnuOtgRo9Sg2vpBLURrAenS+qOSLL",
+	"kzfPBb1KTX8RafCDE3+AMO16k01U4h7ZhVjH33tkQaRbthu1XRmonMUFmmfSaT5QV+qTUdFhi1SP3kTH",
+	"Osjn5eRxx5hQqPYJEWPevucmAVwK+oXMBIhg0JXjGc8morffH4S8u6XAVsmE/ezpyeMvzh6Tz4IrCD4J",
+	"hMO0UxXfSXbmZeH8F8zh7u7V1VWf4+u+Li92XVmz62rEMpiawxai7tZAsduUYWEHj4xPcsZncudw535/",
+	"0L9PUdgT9ADxagT4+0K0hUu7bb0PCCug86YDRJwEET4JSFhfoH7Sqxb6lPGLdvnTfOdw56+F/dw11Qg4",
+	"2B8MogRH8GesUvh75ylD9PEm7xxqgnxAGuPAbsJsPBgMVlUT+kW5hxUvUBVSc5/ZOfzjt+i+PeXlAnyr",
+	"5aVQAkNuLeaT/mM1ckM50rxSZuUkvyzRGivmhkAaxbXfvYw8AJrze0SfCCYtyUdagQClhL3S5WsSB8Kt",
+	"Zsu5cTBUS2vy3PXsxjWBfu3OCi4bq9F0UVqaeNfCu5j6aNqmYRwrFyFWha1cCWCavTYwmEUjMRyM5edz",
+	"CWpj9JDbYNu76rbb9r6TW0x03HVQZPruJ+w/Hj9/9i7m/1VsPF439aSf3JDGCFUjv+Fi9V4/NCVMhuxm",
+	"CXswuD9UVXhJc1VYCoxx6tQHnDxD0oichbYk+nXhZYXuH8zHqx46Tw1euq2Qe89cD+NIncSedGoCZreS",
+	"fauaDZDQqUbmirRlEQs2VEpbmQnjXLWBjYSek6yWRup7squ4FwmT4P6ySJwrOtnYCn6x4uyf0qq8Q3J8",
+	"il6iwpi2/YrNM6tpPm+9P6HU/ZtLndHUfqX4JZcU6bNua1c9X7OtL/d20dSzcmN/9BG6Rh5+9NGSQKJL",
+	"bw5BBvgY6mGlvjIJU+S7i5bvhHHLptrYymwPzrEQMUPeaykjXChQgaIc673acpkfYoUu7Z7nUdxr5Kyc",
+	"yxRtZDIfqugbcCXEjReyajmzgnsic9866oHo6VB1SNOMA07DsZV5N3ZyA/60njBNg0JNibJtt54JXmYT",
+	"nKQYUs0gjCVcSTuo1/Y4sYc7NIKdZMON6rx63yTttdXzilVVRu67Hx+0uOuurU3mq+raHww2rgx3RbOi",
+	"Vi/qvRYv6m/f4eHH1XqmV95VJQKMvUl2DjY59Z/x3Ht1Y5G9m4t8pbizloucCm1AJ57o8lzmuUAf74P9",
+	"hzeXeKX1c64WrnfmV6JjgXLRUWmCrcJNEp3884U7rRF5I1Rw8B1fMvYG9KjlzOeeENLrjShh3S/8JspI",
+	"OpsGUcSkTySq1aRBdFxzhkNnZFHsfDFU4MAZveyzJ87NKNPTc6lcDN3xF4+OWAqcHTILUrkIb6J6Vqcu",
+	"yS88SwjKWat6D/oMnGiMQ9CrjNdZcAcGnbgAsxB5gu14o0I0YWRSiJir7iEG1LIWZ6uhqrs/gQ7J/93q",
+	"WXVE8HCi8i8aqroTE+HF4ZhrVYN3Ur/yIUJvVGwCWa+hcg1Ujj9LdByGTAu6GRmvYWpuRnbi0PZVRLNC",
+	"57y7OknVcadVBjy2zaqsgeutqrOCdtus0oBuBxXWz/RjXhYSDmXtACTVsUEUu5Y+wAGrdWATJIfl9p9x",
+	"29K6uL6hdavvoO2X3ndyVSvL93LA43wwiEKd9m+8o5P2BapOz27ltrfzTm903GBwhNuudHBZR71qQKb/",
+	"cLnf+eV+Qmhe0oCOMbq73e276u6Ob1wP4XTTVb77g8zfvIP7HK2t5LswlhaSGqBSJcQXaZWJyCdYqAvp",
+	"giFyChSnJyOn50wpaEoa52NZCl/TCqkXp3D59rnhiGGpp4/ew/laxS5TxoHf+JEaHNxc4gttnyAa2F/o",
+	"GTympaAtCpItRuk50xr6vnpE73d9Ou9M++DdhFzWTorzoeDcyi/WC/LlXCUeeR3ZcWcPjaUNsAtUQVjr",
+	"TuIKmf63cBxvEmBxmsyHI/kbOJLR1kO338wReX8C3WF6K9mWjlyIb8PtNtPmrQ4ewRAaxkG+pV6TY5wN",
+	"sCGRf6IHrQzwLbqUF4he5v2DvGtNSDZhMIcXeRuDsQgEZl/NSI/Bl9RiEmVXUbhHPQghnHpjwbVBKs94",
+	"QGYeqr3RDefXTiXCLxAZMfOBj3x1IAgd4cgO1jVUCCyEAIBaiaDvtgJ0nuQ7i2hsyO476xjqAbqOAIXp",
+	"cc6m6YyEfZfNKD3yMasUC+DhkjHyxEmEQ4UOVD5UNAQ7S5sEp00/2ipCBRWasASYuAK8hsx8JkojcPCo",
+	"6/JdAzOtaVZTC4Rwc3wIhggHG1x7T+F32Jp2oXdVP5wkxPgYvaDtUJHtgaP6AEEzlAjo/uyFT6ThLCmO",
+	"0tMRmnCp0Bnk3PUfApAOBg8T8hdyW3skzciVdl69p+hM1DnY30/Ivevc+ZM5Fq7y9w43KNR3FKLFh4q6",
+	"//Tkc/Z8bwBAUfv73cTpLKIgcQj8dvilcA85lw902B25XZUeUh9ox2EoKF3S+DRsMeZcGR22lSts0NM6",
+	"dfvYjELM7EiJKwiAsKwQ3HjtN5ZxIafuHPACHi+oHkD58m9G3hUjPQwa/n2AytDjylAE/hK+K+ih4KuF",
+	"U1DAAaoPwncBHQINc8gcvqqu64V02TPNCLx542HU4AmiD1OaPooed6sE/iSJX6Kud+1xPaCWQD82QuiP",
+	"kVC5GSkh8hEhVKSHbjDQ3RoZgAmAgsz5xQOIr3MEge5N5MUEftN6Kl6iDQPeYEMwFiwNDR45Ryfmg6eo",
+	"L64HCYbtYmJPB7Hqo0auJgtyjyV/QozpTF2pymMHJ7nbxtoQUX/sL4q3ZG7whv1M54s742tCzwI3UkcW",
+	"cfnCGnzV3vsRc2JgZud0C/U909kKAM+X3E78qfGFE5Y27m0E8q8PMVlnXP/vjKcbbMDTnWg1Llwii4O9",
+	"Dfr0ki8KzfNXWj/j5YWgcg82mQAzn810aUX+XOSSv1pQKrOD/f1NCjvfI2ADHysLttu/UK71cTMK0Lm7",
+	"oTzJPVPo93TEzX6f3QUnOyu07c/UxUby4y10PAhfUWiLFglszFxepG5kL7/4ayan/EKskw1fFtq+/OKv",
+	"36V0iH3YdbPQohQ+l4qTpm0T9xsc5Qd58Fc/WbBxIkEwYbSL3rk+xu/yd3Ckzqr46MAGBhC2KS9fYwCO",
+	"A40KGZ4SD9U6lgiLBIifKidZBoUcTJ7FZlyJArNsXpG8gscixHBw8kpEf9OhoqB3X39Au4qQtKB2Z2e6",
+	"6Xifff0ejre5vPj99a386T4c6N/ogT77+v0c6ApDYDN1Tz0wpXGGny7BtsGYyN0enHUqcJsIL84NGEU9",
+	"8uvjlXRIsdl0mqtTTqnPLnkB4lBaPU8r6Q2lKy/rdftsKbC0z6roExev0kSA42rhYdIwhGrigL1sgkhy",
+	"LpYfKgSTNEyGIwpHtfwzQ+UwZ0BwI9KUApqlSSGK1ge4UpxKAeRIz62RuagB8Ip8qEgC1CURMsZJEd9n",
+	"scKegugQfbfC1XPtYBDvUB0MHq6W6qJJ+c3JdVXfthLsBu+kA9TEKkOxU6/NAkZIQs62DjirzEXZ3/kg",
+	"g32Qwd65QT3GgEBnWI+hGXvGRYd+wztmzZ1Sighc7i6MCKcgMZrIUkcovUG37aztgVtE3VZlggcXssqq",
+	"QSH+q00PDpXcMZmUgsIp50AvrBRFAF9gFmuOwGjTGaYdIDUfhbEHfQ1swUOAVyQgpAKCHB1MWJUbyjh/",
+	"AKfZg7orTLnO07MXu08fn7C9Twb7D4bq5//9k/7eXn+frAIsL+XYOug/ChQ03v/Nado9/qebMAoHk8Zx",
+	"v3k1m9WUsY4DZSHkT/wOwE3O4AtUD04IlX7pFjkNiy9+w44Ip7UtusohARdWGtDVfeCQf21CFm0szyXT",
+	"ziUOjCgAvwpU4I4dfwNp02Xen+XjO3BKeBVAeKjaiP93OqRHT0jiRS2TO9QVXuChZ3CdWs2rhitBNQlB",
+	"ckmkhMPYWyQCXtBOKLAe66ng5wOJrFJW3GMm0yXQK/H9nKCLfZw1USAsYyy30liZJQ6mAuql1HbuCWkC",
+	"IZQPDaPI2CYr8NKSIDVg5cEUqEICOc9g+4gliAfhdl4K1lF8KhIXPkwxw97QUvDze4b9SSuRwDxyoOtO",
+	"wVBD3DN6bK8wclnlTdpMnzuKNFRnnx/3AB7dySugtAgZU0n6CEZntP/VDNOIMLtOm3CKm+Tloyfvi6S6",
+	"Xf7WSkN3aD7Q0F+dhqLGp5TKwrsauvs7CZbwNBO/uQM+8LnGlO4x8W+6QDCrWeoACZ1+wqeET4nm0UiN",
+	"i0jIHM0k62cgpAIRdVSTGvTZMVaNRMv3w2U7J8kfQzApVzLZZHllWQWPgSCjawAfAAScSL+A4f+s0OpC",
+	"lMsjw6CDh4fMo1PDgzGm3QUO2c5LFbPIHHH5AU0ACalp59Wgnrtg0+5e1qe+/Upy/koDLvVK5B9k9w+y",
+	"+3vw+msCq75Tx7/ANZlb8LbJDZrhx03G7MrlslEE62a17lbuUlOu5FgY60CA8coSlFciGSqMrAWOrs7K",
+	"4SPk55hj546Iy5wIhG2Ok2QHlo2czXzyOsfAETW+4j6yeG2g11k1bb9JUTf0b1VcC9qywyA+sGm/gQjX",
+	"sBrtzr5b8mYrNHfJW/Njx4phcHyplcyqPXQYh+FDwhTDMJMTnkafy4mMLKzC6QrF+yz17XlejQem7J6p",
+	"PjzynB4H5F9MpUi/halIZswTAUrhyxdnr5jjSZ0GDSoUJQvepkEcBAdYEM87vnWo9nvec62UDh3WJwtZ",
+	"eqOGyneQ4B+nc2N9Uo5ojoiDJMhDWBORB12di0IlJ+agxHTOp4Qr0HO1hDEdO5RZP9XgCFjo7DXmrR2q",
+	"XOLVCFlE0cXPQS4fOXBHUAByWeDug1LEA9OnrcgF8kL9NlnIcIx+JTfA0P6NVPcDO/mBnXw/18rb3yZr",
+	"OMilBP537CJETGTcShXS1eJRgNgJNl3FvX1d6+1vkneLu7iOfatN/AcO7tc/al+3Z/5o5ebWOLtu6Nez",
+	"CSdXz1y5+pyxp1HSE6i2npImGoyTmc65zSYE6A6MSdxQ9yjkEhkqwl0mO4cSVUK28wWbcMwfVO+Ui7Xx",
+	"6eNCw5RqL9gsHWcHHBvmkw2LBMnLNHA7BeYt7NZttdL61Ee1HAmHAQ9tqPYGg59/GsMu3FV6ijp6qOJ3",
+	"jxi+6eAr9ss//TNzr7v+O4z5Bu4LbBYTATlofvfoR/bL//J/b0SgVBky+/Ekj6wuRAmPR7MMIB+QQRwq",
+	"79v087/sD9jvfJQT++qMPX55zM6+6X168DF7jrWzTweDwaNYxVtfx6PlYCPqFkLeljLHOUp8TOxQ1fJV",
+	"4mMfnORjZI8rGH6cWqUxnZyzW3lFJ/CWlJ/ouDX6qx735eX1enabEAY2VNzC5iVzCiKrNsPBapXr0vmc",
+	"RxpkRJW8Amb7qBFF5qxLxiWJX4o9ozunz45V5F/QFglXz3njXAOoC9JSAWGGiiBwiScH+YECtWjEoB8h",
+	"aSWuLBkq+Ih7bDVcFx9thJ13Fif0b4Mx2ZIrQ4FZ3rUihuJ96DI+OfmjcCA5PokGKZ9JnU4DACxA/GOk",
+	"tB35d5ARyqvHq0hBOOpxAsUwVVUlcaxdVUXDr819C4g+YwlBeZCX4hAWsrbYkdeD30ZRZCW0WTtzuKqj",
+	"6MBgthlOQX8rnOViMv+bE3/izv1KElDcBZqxfBMWJkTi67kFCvNBPPogHr0XBxPUS7W7IVRZ2zZk3QIb",
+	"dLNDdpRnbveH6scbL1w5kviO4pgiAySedAqlx+yT9YgHn1CIW7pqva/1UCl91T1kfKrdzUGNRjemJa9l",
+	"JMhYNqSkcGMbqo7SdpPLghg5+NjfNi7hBuLnucQYBM+BRmBEfMeHyJHlUbpxGtUVp4sWbaroroEMj2OH",
+	"jIgD7WlgI6lGCKWOWQgVagbNPJs0bzzjdZu6yAUG/ffZNx7+t1Y/RE7TrcYvxGii56VLcBZxTtK4euyE",
+	"KzeBtBLA6Sr8wKf267ODwYHPeY4R8KVAnz/CwJcKfG9ys87d5Kl6AjVtfa1V8sPOzeh0qwNWt4GWW75N",
+	"pprcn3ym8SO0hOPiUq7WVahm3G6PnfbOEZP8UqwDTqqW/oP4/5vws6mvChxV7rblncr+N10hdxvgc2xY",
+	"ShaU1XFEaUKCUayMq+ZhTMmLli6X1BGFdOl6gaN7xBBSNOQk2fDGTLsuwSbOPuRVDRki0aMne+27l5vW",
+	"EKEvdLP/aCw5GKrgHEnePatlhIoevk1oTUxV35G80NbRD3E2H6SHD9LDJiT/yzkHnmSxhvbdacCNSzy0",
+	"kUzQYPgLgpWNwbaITfU5QM8X6GqzynDy3DX9DgkANbHO5OHG/wGC9e69zoqiSmvV2CtxVIX7ZuX+3cY6",
+	"EbMYqKCF/ccyBx4Xdupen73UxhL4OYFdwd/4MWU+hYjdKq6qChBp7nlfNUmO19Gbzv5gD5CkBII/l9XQ",
+	"EfMtiVSsdLpjf+JGENlQuSgy6FvVdZ+wzC6fxco1jejIUPmOupArbL503r6gDN3HXBmvJqUwpDYvxNgy",
+	"9DAeD1VkYUgZZDSOIGfvmQBIFqdoCUp8M9FXOATMYUuKblIAOJS7UrC5kt/Pae4l2JadUAvuKWvUps89",
+	"kvi7YGOo8l+JcXEja6FZT30AoFeuNFb+KKwwggWTshSp210qZFf3j46dWz9dvh1Mlb9I0uim2v0Bts1/",
+	"bzhVH1ix32DIMx6eQI2SyuwXszxaiVtcZnXuy+3pO2DCnJaSjHQEJBkjmaars9sRJW1LNQFWu0qzhf+8",
+	"G43bMTMzkYHOPCJnEY3bQO8WgYC1JPrZ3zv45ODT+x8ffPIrpvtZTTsrfvSD8u3XP/4vlF+N259v5xO3",
+	"5bl2afnJVzZhwdHWRziwDtVLubgRPiYXhbCU67ZV1npJHXmXuhZRmvXeZdTpD5LWne9UmHQ3u5v7Y95a",
+	"rPLO5ignec4dHfPB02I8L4paoA3rYLq9KjIEBYIugCPrQjjbWeXO33Eh+BzesOPyQqt9mUNkzQQTuK4R",
+	"B176VHbvBDMIK/+V/B/cyFacK+9Uv/OBx/3A4257yc0QVsDvoe3JR+2i2/0B6cCbXXdlbWYpanC0jr5k",
+	"XEVRzEA+QAGq6c8AMi9LincxcUL4PlXkxlRpWpxZxvpEn6CIaSMnj6j3gZ7czBTjsG/NFfukmt++8+v5",
+	"L52E/A/AdrrNF/LT3tWRnCuIwtr6RJ4UgpfGRX6h8yR6rdZivEQVjtfqCvIVNv3hOH04Tu//ONHee/vT",
+	"5Kxo2/vOtQcfoWLWaZCqJCqVSYC8rUOWDfLBNpZbkWDeFEqphDeiEsxqywuyUrNOasT34LBQzzzVTLY6",
+	"VG3ZVtl2yVaPyH8ByEJIpQqFxkLkPrlMiLA4FxcSUe/67DOBJgj8LmnmZZWG8eIKXM6MsKyDbrxMTGd2",
+	"QWkTJbrlObOo0SUz0JVkqND9o8rP6rzWKGgfHrk8VOxKlMInHIHIgykaV/pD9QRnB7pW75ERAZUPqwiW",
+	"F60yceir5aUYKjWfnmPCXTd9tCaOUal85o1rF91KOI0LBfmhcvEeXFG9AdEldBS1YSXtJcC6pc+kwQT7",
+	"VijfdNQcVZLxOfktHmJADi4BQhEy7b0eDAXe9HF7YoSPe97nObjtp/TCOeaTE1Hwuu/7iJtktfOr+zJ+",
+	"m3YxnLjVSTMUCK/iTmB0g40zGlWphqDrcFxGDiorfBz7hmolzEqVySlW9BgXd2s/mzjT6J3mRN0bxElR",
+	"f+XM5TRFT0S7O36c6PQvIwXcX6KRgm4KpLh63AhwquG70JPbeYmU843d/qqwvWVkfl06UzkQnU6EzFcl",
+	"YXP0hryzEa5VK+8AMxNIJ8h43ABeBYu3y80VIxg2g5Ug8mh/sEfQDKYmFkYkFoPQ5h5QgWg6SZiXvJA5",
+	"O59bH0tHPcu4cnAMzlKvS4pQg/tLUBKmBFNRhaVF5MMiQX3uGKgofmS65DYIaDKkCUu8ps1x2jFYWB2V",
+	"+xBwK4cq55ZX6enspNRXCrzTFxCTSf2Xaja3rHNwfd2lVmIoVp+Y7FwstAPGofNO5vjDaNIJiAL9J1xC",
+	"T2NpTqt1qrLHHXn7PkxJSIfgk9wV/FwUmAwT5A2NORg6Sym7DLvQTCqr4whN2iz2SlNVwKDAeJiZwJLx",
+	"oaoFZx75QyLzmvPBTJS+VzgLf/VXf8We5mI601aobDFUZwIYjOhR72/FApHipuARUQqLSSAMH4s++1ux",
+	"oNrxiPlQiKEidA68jw1d72KK3Qc4YYL78FnG9g8YevD7zHhIcO6hK4W6ECUqWZFb8nhDh1Se/c3Ziy9c",
+	"9tEw+aBQnfGyguxUmQ7x7qxjNLhuWMHMjGcUrTcVsO0dB+NmdMqtFWX3iBoaqpOzr2sN4T3GqnswQCsB",
+	"ouq5zhfsfGEFCIk9dgbK4ddikfik+2FQiQMndUPGaFs0b9De++gjD3YJCcf8NvjoI5gLcmmpxrU/2Gsk",
+	"98deIKvofRBSYB4ZfVZb3lMxK/gCmy3nIgXXCoeVgjNa+ffWh+P9hmw8pkMILqx9CBNeiAiL1Q83EABw",
+	"+CsARZXG7ZrGOBPoMMV2+kNlqz2CEFYoq9PsK0x9h6kpLRqIMXfjweAh5qmjcZ8KWy56xyDcp10mQfCo",
+	"UriNpZJmAv2BmnEUx1VjsJcdcQKSAg08AMoSioNDEQoyr8UiHC3YOp3Uimu7m5nLtDtUfy2UwAwFLCuk",
+	"UNYQn4pfWh05jMMdg4VYJ7BtQ+XYwtO5OoH6gi8Sf40h5cWCVa3hzOQiK1wQt6GdO1Tx1jXM35NHJPeE",
+	"xlxMLjlFobwQ1WyGiq7Hc5GziShF0tiBYjwWGWxyXfqRBt7dRbETTCVXi8i93TBxPdMlzkeffYOrdkJc",
+	"XA/U14es6kTANB8qcrohOHHjAq29SLZ0XFOi68D4Vw0D1HjqY7BG6FLvJ4Yob+rRgXFBYIJ40T1ySTjS",
+	"JnuZujjoqFm8Rs6Fs+1D8sxBN+iD8cBKw7569aT3KevAfYFXAZKSHpEnhMiVhskLBQeySxE7B3ufDoaq",
+	"44YOwAHnMGYdUsamw530iD17Alv25PTZE1ZIJZhQOWT6eCYVxt1r4w7oUGUTXvIMo7YNS/8q9ek+aHnQ",
+	"klUKZl7L2Qw2zXnB1Wus08QvnHqaDr1G8RTbdVItLVifnehiPlUmuNFSTle1IIp8CNPzI8vwI/Zj2Krs",
+	"x0ragkjuHwNLCD+G6sder1f7P9SSvpYqT9mPbCEM+5GlvoYUf2D5lNGXIbzCf+weMBlcO1Y8xOJ4QVeF",
+	"8We9KEn69HUdVCGU8jAKtdcJ++V/+X+wQaMGfztUhTHCLeztkE1z9YuhCpMwkjglSletVMxEY6QeMGKp",
+	"gH/BxjxDRO3hfDC4L9iAdegTYk33ulARkNoXUdLUmShhJSGxsOOMvOXD6WMxzWeN3mBWzrBseF7dKsQc",
+	"OBFLPIj+xhDc1iupL0fXuxrB+2YL0Xx16G9Dl2zVTKOFaMa6fXaqrxznISnTApFjN2aoCd/iVUQY+3gO",
+	"4nZlRb8DejaeAmSZ6EMs/4Xj7+dGsLQPFBwBfae8oGzMCeOKebqGRFghlUr3+g9E737aJYQQBnRtbrjK",
+	"jc+XqktzxNIv+BdAUJ+qcVpBTcrXIjZZUba/UlA1bkYQzhwvIqmQqXM3byaKgq7dcMUCkV1Q6moDg7xn",
+	"GJzpQFlxZ1Fx5TN3wPrlczeluZ9CIjWcTSUhWIQ5pPcJsH0M59HJJRW7Q4IS8IKO5LoIU0/TnAcdEDvK",
+	"WIumPfzoYPDwY+INad1wUhw8HS6CKFm6CyXNLp6XTOE/wv2iztGjlLZH+/dpN+wZnGMPI2+Ia6Z57ADE",
+	"CiaaCmIHHLxAWIlsgdaKhXAhKPJgMKB3JmGhCi/Rejh3YGfwTiM/a5fUGKraHwwSKIESHB5kyl9MbCPJ",
+	"YCjAOa2acNJ0qBG5HEqIqVWPqAm5wB6FNMF8gZzhuaZQYBQhyUuQeEzUN9wzWGkuQEgoI2d1qMKlqUbl",
+	"NMaxOThqxsOU9/v91K8baSqvcRYOhypN06H6K8fLUMMR1Z1NtNXIFfT2WMddrctXaHeoYHsnXookAbt+",
+	"H3jSnwSakHgKM1R+KRMl4XuRPNtLBv0HyaA/2BvsJ8naLwYPP23/Yj/Z6w/gi/3Bg/Yv7if79MXB3h5+",
+	"QbvHv0+w8INB8k1vMDjYX/HB3v379MH9ZN9N6AqXmNP59ngikQT0t2LRor6EnYE7LbCBeGU4XBmnGcDA",
+	"nxXqzeBVdxdOo+t7E22t6oZe1a/q43fetxC+j2omXmEcVLHmq3oZceLbx5iv6WLg3KF3Gi6fBnjDqg55",
+	"7n/jSXvhC7x5Z6jv88hVK9nxghEUE0SJoOQHInRnRKhhrGjuMGSpvEyMdw9spqlUz4S6sJPYchHnAHl/",
+	"HnagNVgPLOQyXhHsh8MlKUOuqw4w8u4SLJ3aaKiWlIUJGR9dIXfnhtQt7iQ4i1QULdOmlFqe6BS1VMTr",
+	"or5Cmjgdl587NDkrVsWlYaMNHQVoajYJsDnXuhBc4SnbLKbHgaS5oB5U5fx3mHf+g6/jbzA3rjaW8XCQ",
+	"x9JGhzk2lc3XRVPHeEwtVjJ/zbyVpeyVY+rhSkc0yprqM3XO0ZU60vmJ6CsV4VQMFSkX2UXQqzrFX+TC",
+	"wYxQLuiUFOPGMfVgtwIrWS45g8OXRDrObqXWx7yJdRVjpDdd1qr2mR8bCSJJQAh0SbBkRepCK1yZKzT9",
+	"IQyfNqJtTq7WKUQBkhFU7iBVDpUmE1Sp51YE1bhLi0b6uKvAnlU6eU8b++u47RNzefcM97Zs9btCQ7o9",
+	"M/0uenRnLPTqzt2Opf6NcM8fmN5fmel1RjmncVkmWR9Y4A8s8AcW+AML/CuxwKTifYecMOzpzfyl13PC",
+	"0Fvvccu9z8Uh9tjbFVzqn2D4dNYy9HQJLnH0rOaYW4pMSAT3rNO1FWHyt1Gnns7VO89CPVdrSPaHKITf",
+	"ABaSP3K0ee/0iN11aAJ9ErmOBdx8k9RPj3NaAWO0w9MvBTjbTWdz9IFUmUj8XSyCodwEx8ZliDNCrJDo",
+	"zUNA7nl65NznvRsm+TWSWzdgCbW5jVPnvXcm5Q5Do5XrhIfxwJHG3ah8RwNqLjgvOVhcTCogCoxOrtzI",
+	"g0vTaRynMVSPRCkvK6nbj9FTmi9Pktj5a17UwJPRiyiTQLIS1gCJxGz6LihkRI/Sw6Ha60etXNW6uBIF",
+	"+ZClflDp0VDtx1Vkel7krObX2vj8frPFAOovfR6xRomDuIRzGnOZGnNMIBFDKkONzriNEMyNuh70Y3CQ",
+	"9oCDkB6kBh3tbKFuN1AGjci9ifoVt5Y080Fg8VqT3s2hLb9DKXAcuHUg7Qi6TqAdfSmLhGcOV+1s6aYE",
+	"vsMKqPBElAKuxBXZIthEGpzdRtIIrAHrhtCP2g7JdFmKzKKvhBemsOm6WHsPXRFZXsqx7bpwFreuuJJ+",
+	"yqV1To31xBxu0rAOn8ycWyp6NFQfx9ulhrB9yFLYFDgpvIDt8En8bQTczTpBKIGTkpBzY8Dups52D7EL",
+	"7lQBBa9Fa4VwLDzaTEbxOSDXeThZR13TQBFeoDaJ1AhmqMhp7xjdBg9ZfOGPJ7L8vfeOqxKUoLseGvSf",
+	"fP70lJ0eAHktCkFRPelnc5WDaxb04cW5EeUl1pYa1rnkhQNUw8F+dfLVc5bpXJBsbOdRYFYtvOyQVVPA",
+	"fvnP/0ypoRMWTTY8HqpZKcB3QvFykVSEEUpkXIGHinOyo4Qb2J0jluYCLsqUTmC1i/ANUssnpZ6m1UJ2",
+	"+6w+aTUfx8VQ+Rny/n7I1LoFd3rJUl95DrHynOFDZWZwC5qJEJZdIa2D3zTdsGTzgqOLVIkunljnHxL2",
+	"+4T1EvYfEmb5+VCh42BAkufukuqyWSnG8tpNAQbYz7SxpZ5NhMtwAzdPfEdxuP40TRS59tYw+HBKaL0Z",
+	"JHhx7ir+koJRA64Gk3Zpyq578U6bFJ/0Lvd/L8pPaAr9Hhuqz599wi73+w/6eyx9cfrVd6eDvZRNhTEY",
+	"OigVe3z6CUO/cbyUtBIRXi7rPD/7PBmqF5+d0qsXn/0dvqahHtLAEtqIcyVt4t4w2o4J09UGHiorp5h/",
+	"l4C3gDOaYcQh1e0phVPXJu5uFxfwDROKbjxMrc7LUkIMEjmGowv382fPXrJxSQlqMMvm569evQSQZhXC",
+	"FeykFIKOCgXjzVUmSsulsgt2Ps8vhGUL4Ryz4wT46PJyyQuHoo+L41y3VkgUpyFW5z0IFoHO1KWLJg6X",
+	"ozZ+w8GkLGaCVbSnXylC9Tnc+cjwvqXBnuahabBfrQEBrrl9a68v1y4pUfMfpKXfQILJepYuCpGeqzuN",
+	"ZnO5yrGlOwhto3oidjNQKG+dcAl5O7yR6c5ziaZSWoP3OYb2SohL4GQDIRZWZaIpNpVCWcf1AFQrejN6",
+	"9+vKQNKphDlw/Ry7SJAI0zawflU4rfNZdNrTwExE4eoVs3KvGacO9/uK8Du2PvoOZrTOkUuzJEde8Wq6",
+	"j1zkAAlUcHf4sOBgvfOaHsyph5KVMM4beVVeQudSO1RRqxgkX/F7TRkcXJf9XnAL7mU3irSW1ohijBIB",
+	"BKagTsCPNBLz5urGQDx36bk8a7AsaH918XnQ1gTqDvnynLO22xpHwQWaybwWdRfHwaH/KdSVAKMFIpBL",
+	"zONlHWlDIP2Em7hSJ6b4oZEUMFTV6FbbUN0EvtWF+A6yQFOvfiUEsNr92Hp/BfEzACOVlVbGB6p9SGHw",
+	"wcjw7pWdeR52o9WRx833PreBnYjpNrf5GjWoa2j3h2BrfnPHitBxFeZC5DJhPCu1MTAuOm8ewZ1uTVST",
+	"DtWSnvSI3XB5hKbcRerkD1QFybzKhkr9ogwy/gKg3JpV+MsKeYOo2EqRY5msQLKb2tCXLjb3Nvg31KGc",
+	"Qo/uxgvkXZpR6nPzQUz4rdOZpVPKG7v1zgSGCryUDixs/bzkV7zYTHJYnzzxswWyb9AIxtszzr7nPae+",
+	"jH0qUPfvue6AmOqyB78CFjN0FLENTYKBse6sQocdnnbV/0pN4bL/2pLLoo14fOPKnPkmNkJye4tz/9VX",
+	"Tx/5E3/37Nw3YQp+pRQP1TyuoDRhzSrs3A/82wf+7d3TVX80GK923ua4eTckGPTydW/KrSglL+7Qbp3p",
+	"MifgOWf8c01gCH2m85WZqM5cieehT+/y4DcaW5udynfoA3LWO8lPtbRVtklMtYJn2BpQPROl0/CVwiec",
+	"8v2BrW4sIFga7WADnE0CNYauaIaGuxRNLN4TXlzPuMpFPoosFyl5RKUZMBaQIZggCFIXmJ1aXYiSkjx1",
+	"fv4XxpNKSVWKzHJ1MS94mQzVnP2B8d1f/ul/vd8Fc1ajh7qsmUQoWnpWihkvnTvEUHFFnvZhoJQMSlp0",
+	"bvAfj8ZoDvTYUm7U7rVDhTBWzMB4XUiA9nAObWCmvISYcLJcTZ8FcUWWQxXGabpHLFKYJmiZwiq8HQ7x",
+	"MoOpdMZdkml6/Qf3gP38E/u3/xtzXdjF5rvB0aMUBbfyUoTdNlTRmoDe8xy9rKsG7jkIB9Tw0TDuGcZ3",
+	"OzDjP//0dXeoOn9z8tfPIcCc/fy/P+jv9T8+Yo/nJQcas3vy9NXxCfvyq+Pn7Hg267PH/T2AVHAJxkLS",
+	"iKFy2IiHjCN5ZBJBEMhzB1BYHq5B22+SsXeEu99s5lfSvy2NdqV46C4hv69vl/cqXFxp+525+wOs1weP",
+	"4Q/M4Lu+JYlqRE5AYXPePivOyv38tqxgq8ZrmU7dLLZCb/4CFFYbEqWKFn1QWv0Wskq9zVFar6iiXBhb",
+	"g/w/NWYuDOOs5CoHVgeqYZ2ARLm3/yk7l9Z0K6Uv+NQqArc0XvkkslLYoFFCo6uPt1HF4igAzIjSo47C",
+	"c+SRHILlUGGiH/SnQjffQl8YJu1qNuQVdPUd8R5Y96/EcGDbN8Rj4TIllV3eLQD4gSnk4X7rB/7DBf7u",
+	"CQ6ebcZps0SExpGKDa9s+jqE9FC6uY3py6m41K+dhIM1Hbko8wroa7DXrcQsl0nZJd9HX+ihilDLvM9B",
+	"ifXmVKcziLUm9MHuelLx3rTWNdJwsDxbNC0fkj3+JthcWIq3PyalUPktNJrJTTaiV94h2rics3HoNuLK",
+	"eQ1GnPYjihxBhcVQgad42P8p67i8Aiw1hZ4BOB5c5eycGxFDkk4FJ8OTM62dPcKaquiV1JdIK7f7qrtk",
+	"clK5vqoa3B9A9hC4KktdeBQ+Iy3jlv38L/vs7BHrXPES8oWQJuXnf7mPD8mRrIuWaK3AwelsIq4mvLTg",
+	"pl9a1nl69oJ98ukng96+G843wtgLjAtEf6q93r6pKk/YXu++SYZqv7dvEnbaOzAJO+jtkWV/b3DNOhTV",
+	"0kXNiYCJ5BTeVE2sqUccGfIxx0BnpW0IizkKf8Xx06DZcja6oUpDA4dszAsjUlCwXUpdkDLNq8kMDqaZ",
+	"RR587i51gX5u6AQ+FlceYhHw0ZuLYyeidM5aYdEBo4/WA/3uFCR0JAd3alKaahL67JjgC9keIhdWoxoq",
+	"2NhHDCKyVUbpOnxGFhXvCAwbwPQsHcVLxOe0fi5Q+weLiMeKuQs9ifhDDDTPROIigc41QiMsyMtxqL48",
+	"YXiR5/NSGAoZ5VlWilxaBxpbCtBpWrhUVM7OXrx0EMmYNaddosTerLhH3j0IRlsz7vC/0zbCaDcGqsB5",
+	"ehmKtSBlPMYAfKAfsbdnwqRCV9TLlVAnsDHuAPzuGbctrYvrG1q3+g7a/lxfsSlXi+aZTCo2CGNP6gQ0",
+	"oVwDNiLSq3rp37fnkdmP08js17LI7L/nLDJ0nla5NYpSwqTA0fUjSgJqq8or0vjBRvYOkhFCWJ/nOFwS",
+	"Fn+gKXSGAnWQzWhc5rA49Zs3Yqtor2+q5bjBpkxc1+6s0LZvLi/eEfuFrdTC/ajdtIEbUl0LCSP/DeeH",
+	"7aYHuZTDmHdweRXIW5Cuskwoi6yBcncb8URDFbFCNM8hUtnXhqwHnQqBzpeF8G5AaP3DRCsF3N2nLcyI",
+	"0pZ6ve7ye1loe/b1X3+4Az/cgR/uwOgOlFN+IXbN5cXvr6fFLWLQkDR8uMbuPklaTHopngxpd8KIit3x",
+	"rQRti2xegtYQqOK54KUoj+d2snP4x29hH5EWfJXPNb31SaKcoBaBNh46kQ+UVqRFcw4GPskUz/NSGMN2",
+	"9UwoPpP9BZ8WGDE1FjabeEyKjuhf9Fk6sXZmDnd3aTz9gp/3HV5c6uz/87LYOdzZxdgaN1fNfj+NMmfM",
+	"FcrDsQ9IFVbVqfQIptuvjiqUasE+fEL51OK6PI2gKJcILwIYABNV6ZZzudKnCmZfsFkpcpl5CE2vYKyB",
+	"2cX1VZ+3VfrlsYMmwL7E3rTRIPGDtsJVmF89hV8Sgnmi2Lpw5WdV9r9aK86FfamZr1tD3ZIq9q/K2OVw",
+	"FBR4Vmciqv37rKXiY7x9ZcYLF7RtIocblyiJY3SZLmQmRTytrkBbrS+fuvTu/fjmgQdtaTXRMTFMmK5H",
+	"Q4lCZLbUSmaVV2NtcbF0S7XPwNIlTMhSiH9OhS1l5uuPzma/iexIu+XbN///AQA=",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
