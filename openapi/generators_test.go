@@ -32,29 +32,41 @@ func allSchemas(doc *openapi3.T, f func(string, *openapi3.Schema)) {
 	}
 }
 
-// TestNullableHasType: OpenAPI 3.0.3 gives `nullable: true` a meaning only
-// beside a `type` ("A true value adds null to the allowed values if type is
-// set explicitly"); without one, linters report an error and some
-// generators drop the null. Every nullable schema names its type.
-func TestNullableHasType(t *testing.T) {
+// TestNullIsAType: the document is OpenAPI 3.1, where null is a JSON
+// Schema type: a schema that admits null says so by `type: [T, "null"]` or,
+// for a reference, `oneOf: [{$ref}, {type: "null"}]`, a form linters,
+// JSON Schema validators and generators read alike. The 3.0 keyword
+// `nullable` (which 3.1 tools ignore, and which 3.0 tools misread beside
+// allOf) appears nowhere, and there are as many nullable schemas as the 45
+// of the 3.0 document.
+func TestNullIsAType(t *testing.T) {
 	n := 0
 	allSchemas(load(t), func(at string, s *openapi3.Schema) {
-		if !s.Nullable {
-			return
+		if s.Nullable {
+			t.Errorf("%s: nullable keyword in a 3.1 document", at)
 		}
-		n++
-		if s.Type == nil || len(s.Type.Slice()) == 0 {
-			t.Errorf("%s: nullable without a type", at)
+		if s.Type.IncludesNull() && !s.Type.Is("null") {
+			n++
+			if len(s.Type.Slice()) != 2 {
+				t.Errorf("%s: type %v, want one type and null", at, s.Type.Slice())
+			}
+		}
+		if len(s.OneOf) == 2 && s.OneOf[1].Value.Type.Is("null") {
+			n++
+			if s.OneOf[0].Ref == "" || s.Type != nil {
+				t.Errorf("%s: a nullable reference is oneOf [{$ref}, {type: null}] and nothing else", at)
+			}
 		}
 	})
-	if n == 0 {
-		t.Error("found no nullable schema; the walk is wrong")
+	if n < 45 {
+		t.Errorf("%d schemas admit null, want at least the 45 of the 3.0 document", n)
 	}
 }
 
-// TestNullableReferences: the two nullable references (a schema beside
-// allOf of one $ref) accept null and a value of the referenced schema, and
-// refuse a value of another type, under kin-openapi (the server's validator).
+// TestNullableReferences: the two nullable references accept null and a
+// value of the referenced schema, and refuse a value of another type, under
+// kin-openapi (the server's validator), with its default options and with
+// JSON Schema 2020-12 validation.
 func TestNullableReferences(t *testing.T) {
 	doc := load(t)
 	tests := []struct {
@@ -66,16 +78,18 @@ func TestNullableReferences(t *testing.T) {
 	}
 	for _, tc := range tests {
 		p := doc.Components.Schemas[tc.schema].Value.Properties[tc.property].Value
-		if err := p.VisitJSON(nil); err != nil {
-			t.Errorf("%s.%s refuses null: %v", tc.schema, tc.property, err)
-		}
-		if tc.valid != nil {
-			if err := p.VisitJSON(tc.valid); err != nil {
-				t.Errorf("%s.%s refuses %v: %v", tc.schema, tc.property, tc.valid, err)
+		for _, opts := range [][]openapi3.SchemaValidationOption{nil, {openapi3.EnableJSONSchema2020()}} {
+			if err := p.VisitJSON(nil, opts...); err != nil {
+				t.Errorf("%s.%s refuses null: %v", tc.schema, tc.property, err)
 			}
-		}
-		if err := p.VisitJSON(tc.invalid); err == nil {
-			t.Errorf("%s.%s accepts %v", tc.schema, tc.property, tc.invalid)
+			if tc.valid != nil {
+				if err := p.VisitJSON(tc.valid, opts...); err != nil {
+					t.Errorf("%s.%s refuses %v: %v", tc.schema, tc.property, tc.valid, err)
+				}
+			}
+			if err := p.VisitJSON(tc.invalid, opts...); err == nil {
+				t.Errorf("%s.%s accepts %v", tc.schema, tc.property, tc.invalid)
+			}
 		}
 	}
 }

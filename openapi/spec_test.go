@@ -46,7 +46,7 @@ func operations(doc *openapi3.T) []operation {
 
 func TestSpecLoadsAndValidates(t *testing.T) {
 	doc := load(t)
-	if got, want := doc.OpenAPI, "3.0.3"; got != want {
+	if got, want := doc.OpenAPI, "3.1.0"; got != want {
 		t.Errorf("openapi version = %q, want %q", got, want)
 	}
 }
@@ -253,14 +253,14 @@ func TestNumbersAreDoubles(t *testing.T) {
 	doc := load(t)
 	for name, ref := range doc.Components.Schemas {
 		walk(ref, "#/components/schemas/"+name, map[*openapi3.Schema]bool{}, func(at string, s *openapi3.Schema) {
-			if s.Type.Is("number") && s.Format != "double" {
+			if s.Type.Includes("number") && s.Format != "double" {
 				t.Errorf("%s: number with format %q, want double", at, s.Format)
 			}
 		})
 	}
 	for _, o := range operations(doc) {
 		for _, p := range o.op.Parameters {
-			if s := p.Value.Schema.Value; s.Type.Is("number") && s.Format != "double" {
+			if s := p.Value.Schema.Value; s.Type.Includes("number") && s.Format != "double" {
 				t.Errorf("%s parameter %s: number with format %q, want double", o, p.Value.Name, s.Format)
 			}
 		}
@@ -277,7 +277,7 @@ func TestRequestObjectsAreClosed(t *testing.T) {
 		}
 		for ct, mt := range o.op.RequestBody.Value.Content {
 			walk(mt.Schema, o.String()+" "+ct, map[*openapi3.Schema]bool{}, func(at string, s *openapi3.Schema) {
-				if s.Type.Is("object") && (s.AdditionalProperties.Has == nil || *s.AdditionalProperties.Has) {
+				if s.Type.Includes("object") && (s.AdditionalProperties.Has == nil || *s.AdditionalProperties.Has) {
 					t.Errorf("%s: request object without additionalProperties: false", at)
 				}
 			})
@@ -381,8 +381,8 @@ func TestNullableChecks(t *testing.T) {
 	check := load(t).Components.Schemas["Check"].Value
 	for _, f := range []string{"statistic", "limit"} {
 		p := check.Properties[f].Value
-		if !p.Type.Is("number") || !p.Nullable {
-			t.Errorf("check.%s: type %v nullable %v, want a nullable number", f, p.Type.Slice(), p.Nullable)
+		if !p.Type.Includes("number") || !p.Type.IncludesNull() {
+			t.Errorf("check.%s: type %v, want a nullable number [number null]", f, p.Type.Slice())
 		}
 	}
 }
@@ -396,7 +396,7 @@ func TestIntegerParametersAreBounded(t *testing.T) {
 	for _, o := range operations(doc) {
 		for _, pr := range o.op.Parameters {
 			p := pr.Value
-			if p.Schema == nil || p.Schema.Value == nil || !p.Schema.Value.Type.Is("integer") {
+			if p.Schema == nil || p.Schema.Value == nil || !p.Schema.Value.Type.Includes("integer") {
 				continue
 			}
 			n++
