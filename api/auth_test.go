@@ -179,6 +179,12 @@ func TestScopeMatrix(t *testing.T) {
 			n++
 			return jsonCall(http.MethodPost, "/v1/runs", runBody("nitrate-uv", "photometer-7", baseTime.AddDate(0, 1, n), standards("nitrate", 3))), http.StatusCreated
 		},
+		"createRunCsv": func(t *testing.T) (call, int) {
+			n++
+			body, _ := nitrateCSV(3)
+			path := "/v1/runs/csv" + strings.TrimPrefix(csvPath("nitrate-uv", "photometer-7", baseTime.AddDate(0, 1, n).Format(time.RFC3339)), "/v1/runs")
+			return call{method: http.MethodPost, path: path, contentType: "text/csv", body: []byte(body)}, http.StatusCreated
+		},
 		"getRun": func(*testing.T) (call, int) {
 			return call{method: http.MethodGet, path: "/v1/runs/" + run.ID.String()}, http.StatusOK
 		},

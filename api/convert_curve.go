@@ -151,6 +151,15 @@ func nonNil(v []float64) []float64 {
 	return v
 }
 
+// enums converts flags to the spec's enum type E, never nil.
+func enums[E ~string](v []string) []E {
+	out := make([]E, len(v))
+	for i, s := range v {
+		out[i] = E(s)
+	}
+	return out
+}
+
 func nonNilS(v []string) []string {
 	if v == nil {
 		return []string{}

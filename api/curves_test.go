@@ -357,7 +357,7 @@ func TestPredictions(t *testing.T) {
 			t.Errorf("%s: interval [%v, %v] at %v does not contain %v at 0.95", res.ID, lo, hi, res.Interval.Level, x)
 		}
 	}
-	flags := func(i int) []string { return got.Results[i].Flags }
+	flags := func(i int) []oapi.PredictionFlag { return got.Results[i].Flags }
 	if len(flags(0)) != 0 || len(flags(1)) != 0 {
 		t.Errorf("in-range samples flagged: %v, %v", flags(0), flags(1))
 	}

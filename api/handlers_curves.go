@@ -138,7 +138,7 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 
 func predictionOut(id string, p calib.Prediction) oapi.PredictionResult {
 	res := oapi.PredictionResult{
-		ID: id, Flags: nonNilS(p.Flags), Readings: p.Readings, MeanResponse: p.MeanResponse,
+		ID: id, Flags: enums[oapi.PredictionFlag](p.Flags), Readings: p.Readings, MeanResponse: p.MeanResponse,
 		Dilution: p.Dilution, IntervalMethod: p.Method,
 		Interval: oapi.Interval{Level: p.Interval.Level, Bounded: p.Interval.Bounded},
 	}

@@ -81,12 +81,12 @@ func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEvents
 	out := oapi.ListResultEvents200JSONResponse{Events: make([]oapi.ResultEvent, 0, len(page.Events)),
 		NextCursor: page.NextCursor, HasMore: page.More, Cautions: calib.Cautions()}
 	for _, e := range page.Events {
-		oe := oapi.ResultEvent{Seq: e.Seq, At: oapi.NewTimestamp(e.At), Kind: oapi.ResultEventKind(e.Kind), Cause: e.Cause,
+		oe := oapi.ResultEvent{Seq: e.Seq, At: oapi.NewTimestamp(e.At), Kind: oapi.ResultEventKind(e.Kind), Cause: oapi.ResultEventCause(e.Cause),
 			ReleaseState: oapi.ReleaseState(e.State), Reason: e.Reason, ResultID: e.ResultID, SampleID: e.SampleID,
 			RunID: uuidOf(e.RunID), CurveID: uuidOf(e.CurveID), Analyte: e.Analyte, Unit: e.Unit, Concentration: e.Concentration,
 			AcquiredAt: oapi.NewTimestamp(e.AcquiredAt), Dilution: e.Dilution, StandardError: e.StandardError,
 			Interval:       oapi.Interval{Low: e.IntervalLow, High: e.IntervalHigh, Level: e.IntervalLevel, Bounded: e.IntervalBounded},
-			IntervalMethod: e.IntervalMethod, Flags: nonNilS(e.Flags), Reported: jsonPtr[oapi.ReportedValue](e.Reported)}
+			IntervalMethod: e.IntervalMethod, Flags: enums[oapi.ResultFlag](e.Flags), Reported: jsonPtr[oapi.ReportedValue](e.Reported)}
 		if e.Previous != "" {
 			prev := oapi.ReleaseState(e.Previous)
 			oe.PreviousState = &prev
@@ -103,7 +103,7 @@ func resultsOut(rs []lab.Result) []oapi.SampleResult {
 			ID: r.ID, SampleID: r.SampleID, RunID: uuidOf(r.RunID), CurveID: uuidOf(r.CurveID), Analyte: r.Analyte,
 			Unit: r.Unit, AcquiredAt: oapi.NewTimestamp(r.AcquiredAt), Responses: nonNil(r.Responses), Readings: len(r.Responses),
 			MeanResponse: r.MeanResponse, Dilution: r.Dilution, Concentration: r.Concentration,
-			StandardError: r.StandardError, IntervalMethod: r.IntervalMethod, Flags: nonNilS(r.Flags),
+			StandardError: r.StandardError, IntervalMethod: r.IntervalMethod, Flags: enums[oapi.ResultFlag](r.Flags),
 			Interval:     oapi.Interval{Low: r.IntervalLow, High: r.IntervalHigh, Level: r.IntervalLevel, Bounded: r.IntervalBounded},
 			ReleaseState: oapi.ReleaseState(r.ReleaseState), ReleaseReason: r.ReleaseReason,
 			StateChangedAt: oapi.NewTimestamp(r.StateChangedAt), CreatedAt: oapi.NewTimestamp(r.CreatedAt), Actor: r.CreatedBy,

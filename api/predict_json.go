@@ -38,7 +38,7 @@ var (
 	_ = struct {
 		Concentration  *float64
 		Dilution       float64
-		Flags          []string
+		Flags          []oapi.PredictionFlag
 		ID             string
 		Interval       oapi.Interval
 		IntervalMethod string
@@ -187,7 +187,7 @@ func appendJSONFloat(b []byte, f float64) ([]byte, bool) {
 }
 
 // appendJSONStrings appends a string slice: null when nil, [] when empty.
-func appendJSONStrings(b []byte, s []string) []byte {
+func appendJSONStrings[S ~string](b []byte, s []S) []byte {
 	if s == nil {
 		return append(b, "null"...)
 	}
@@ -196,7 +196,7 @@ func appendJSONStrings(b []byte, s []string) []byte {
 		if i > 0 {
 			b = append(b, ',')
 		}
-		b = appendJSONString(b, x)
+		b = appendJSONString(b, string(x))
 	}
 	return append(b, ']')
 }

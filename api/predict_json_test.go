@@ -172,7 +172,7 @@ func randPredictionResponse(r *rand.Rand) *oapi.PredictionResponse {
 	}
 	for i := range v.Results {
 		v.Results[i] = oapi.PredictionResult{
-			Concentration: randFloatPtr(r), Dilution: randFloat(r), Flags: randStrings(r), ID: randString(r),
+			Concentration: randFloatPtr(r), Dilution: randFloat(r), Flags: asFlags(randStrings(r)), ID: randString(r),
 			Interval:       oapi.Interval{Bounded: r.IntN(2) == 0, High: randFloatPtr(r), Level: randFloat(r), Low: randFloatPtr(r)},
 			IntervalMethod: randString(r), MeanResponse: randFloat(r), Readings: randReadings(r), StandardError: randFloatPtr(r),
 		}
@@ -197,7 +197,7 @@ func TestPredictionJSONStrings(t *testing.T) {
 	t.Parallel()
 	for _, s := range jsonStringPieces {
 		checkSameAsEncodingJSON(t, &oapi.PredictionResponse{Analyte: s, Cautions: []string{s},
-			Results: []oapi.PredictionResult{{ID: s, Flags: []string{s, s}}}})
+			Results: []oapi.PredictionResult{{ID: s, Flags: []oapi.PredictionFlag{oapi.PredictionFlag(s), oapi.PredictionFlag(s)}}}})
 	}
 	// Every rune, in one string each for the analyte.
 	var sb strings.Builder
@@ -342,7 +342,7 @@ func FuzzPredictionJSON(f *testing.F) {
 			n := func(k int) float64 { return nums[(i+k)%4] }
 			p := func(k int) *float64 { x := n(k); return &x }
 			res := oapi.PredictionResult{
-				Concentration: p(0), Dilution: n(1), Flags: []string{flag, id}, ID: id,
+				Concentration: p(0), Dilution: n(1), Flags: enums[oapi.PredictionFlag]([]string{flag, id}), ID: id,
 				Interval:       oapi.Interval{Bounded: shape&(1<<8) != 0, High: p(2), Level: n(3), Low: p(1)},
 				IntervalMethod: flag, MeanResponse: n(2), Readings: readings + i, StandardError: p(3),
 			}
@@ -361,7 +361,7 @@ func FuzzPredictionJSON(f *testing.F) {
 			if shape&16 != 0 {
 				res.Flags = nil
 			} else if shape&32 != 0 {
-				res.Flags = []string{}
+				res.Flags = []oapi.PredictionFlag{}
 			}
 			v.Results[i] = res
 		}
@@ -383,7 +383,7 @@ func benchPredictionResponse() *oapi.PredictionResponse {
 			flags = []string{"below_loq"}
 		}
 		v.Results = append(v.Results, oapi.PredictionResult{
-			Concentration: &conc, Dilution: 1, Flags: flags, ID: "bench-sample-" + string(rune('0'+i)),
+			Concentration: &conc, Dilution: 1, Flags: enums[oapi.PredictionFlag](flags), ID: "bench-sample-" + string(rune('0'+i)),
 			Interval:       oapi.Interval{Bounded: true, High: &hi, Level: 0.95, Low: &lo},
 			IntervalMethod: "fieller", MeanResponse: 0.012 + 0.0481*(1+9.5*float64(i)), Readings: 2, StandardError: &se,
 		})
@@ -435,4 +435,13 @@ func BenchmarkPredictionJSON(b *testing.B) {
 			predictionBufs.Put(bp)
 		}
 	})
+}
+
+// asFlags converts random strings to flags, keeping nil as nil so the
+// encoder's null case stays covered.
+func asFlags(v []string) []oapi.PredictionFlag {
+	if v == nil {
+		return nil
+	}
+	return enums[oapi.PredictionFlag](v)
 }

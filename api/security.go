@@ -111,12 +111,32 @@ func newTokenLimiter(perSecond float64, burst int) *tokenLimiter {
 // allow takes one request from the token's bucket. When the bucket is
 // empty it returns false and how long until a request would be admitted.
 func (l *tokenLimiter) allow(tokenID string, now time.Time) (bool, time.Duration) {
-	return l.allowScaled(tokenID, 1, now)
+	ok, wait, _ := l.allowScaled(tokenID, 1, now)
+	return ok, wait
+}
+
+// quota is a bucket's state after a decision, as the RateLimit header
+// fields of draft-ietf-httpapi-ratelimit-headers-06 state it.
+type quota struct {
+	limit     int     // the bucket's size (the burst)
+	remaining int     // whole requests left in the bucket
+	reset     int     // seconds, rounded up, until the bucket is full
+	window    int     // seconds, rounded up, the rate takes to fill an empty bucket
+	perSecond float64 // the refill rate
+}
+
+// setHeaders writes q as RateLimit-Limit, -Remaining, -Reset and -Policy.
+func (q quota) setHeaders(h http.Header) {
+	h.Set("RateLimit-Limit", strconv.Itoa(q.limit))
+	h.Set("RateLimit-Remaining", strconv.Itoa(q.remaining))
+	h.Set("RateLimit-Reset", strconv.Itoa(q.reset))
+	h.Set("RateLimit-Policy", strconv.Itoa(q.limit)+";w="+strconv.Itoa(q.window))
 }
 
 // allowScaled is allow for a key whose bucket, when it is created, gets
-// scale times the limiter's rate and burst.
-func (l *tokenLimiter) allowScaled(tokenID string, scale int, now time.Time) (bool, time.Duration) {
+// scale times the limiter's rate and burst. It also returns the bucket's
+// quota after the decision.
+func (l *tokenLimiter) allowScaled(tokenID string, scale int, now time.Time) (bool, time.Duration, quota) {
 	l.mu.Lock()
 	defer l.mu.Unlock()
 	b, ok := l.buckets[tokenID]
@@ -127,15 +147,26 @@ func (l *tokenLimiter) allowScaled(tokenID string, scale int, now time.Time) (bo
 		b = rate.NewLimiter(l.limit*rate.Limit(scale), l.burst*scale)
 		l.buckets[tokenID] = b
 	}
+	allowed, wait := true, time.Duration(0)
 	r := b.ReserveN(now, 1)
-	if !r.OK() {
-		return false, time.Second
-	}
-	if d := r.DelayFrom(now); d > 0 {
+	switch {
+	case !r.OK():
+		allowed, wait = false, time.Second
+	case r.DelayFrom(now) > 0:
+		wait = r.DelayFrom(now)
 		r.CancelAt(now) // a refused request takes nothing from the bucket
-		return false, d
+		allowed = false
 	}
-	return true, 0
+	return allowed, wait, bucketQuota(b, now)
+}
+
+// bucketQuota reads b's state at now.
+func bucketQuota(b *rate.Limiter, now time.Time) quota {
+	perSecond, burst := float64(b.Limit()), b.Burst()
+	tokens := max(0, b.TokensAt(now))
+	return quota{limit: burst, remaining: int(math.Floor(tokens)), perSecond: perSecond,
+		reset:  int(math.Ceil((float64(burst) - tokens) / perSecond)),
+		window: int(math.Ceil(float64(burst) / perSecond))}
 }
 
 // sweep drops the buckets that have refilled completely: a fresh bucket is
@@ -150,7 +181,10 @@ func (l *tokenLimiter) sweep(now time.Time) {
 }
 
 // rateLimitMiddleware refuses a token's requests past its rate with 429 and
-// a Retry-After header in whole seconds (at least 1). It runs after
+// a Retry-After header in whole seconds (at least 1), and states the token's
+// quota on every answer, admitted or not, in the RateLimit header fields of
+// draft-ietf-httpapi-ratelimit-headers-06 (RateLimit-Limit, -Remaining,
+// -Reset, -Policy), so a client learns its limit before a 429. It runs after
 // authMiddleware, so requests without a valid token are not counted.
 func (s *Server) rateLimitMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 	return func(c echo.Context) error {
@@ -162,14 +196,15 @@ func (s *Server) rateLimitMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 		if isMachineReader(p.Scopes) {
 			scale = ReaderRateFactor
 		}
-		allowed, wait := s.limiter.allowScaled(p.TokenID, scale, s.lab.Now())
+		allowed, wait, q := s.limiter.allowScaled(p.TokenID, scale, s.lab.Now())
+		q.setHeaders(c.Response().Header())
 		if allowed {
 			return next(c)
 		}
 		secs := max(1, int(math.Ceil(wait.Seconds())))
 		c.Response().Header().Set("Retry-After", strconv.Itoa(secs))
 		return newProblem(http.StatusTooManyRequests, "this token sends requests faster than "+
-			strconv.FormatFloat(float64(s.limiter.limit)*float64(scale), 'g', -1, 64)+" per second (burst "+strconv.Itoa(s.limiter.burst*scale)+
+			strconv.FormatFloat(q.perSecond, 'g', -1, 64)+" per second (burst "+strconv.Itoa(q.limit)+
 			"); retry after "+strconv.Itoa(secs)+" s")
 	}
 }

@@ -111,22 +111,22 @@ func (e ControlRule) Valid() bool {
 
 // Defines values for CurveNonlinearOutcome.
 const (
-	Converged      CurveNonlinearOutcome = "converged"
-	IterationLimit CurveNonlinearOutcome = "iteration_limit"
-	Singular       CurveNonlinearOutcome = "singular"
-	Stalled        CurveNonlinearOutcome = "stalled"
+	NonlinearConverged      CurveNonlinearOutcome = "converged"
+	NonlinearIterationLimit CurveNonlinearOutcome = "iteration_limit"
+	NonlinearSingular       CurveNonlinearOutcome = "singular"
+	NonlinearStalled        CurveNonlinearOutcome = "stalled"
 )
 
 // Valid indicates whether the value is a known member of the CurveNonlinearOutcome enum.
 func (e CurveNonlinearOutcome) Valid() bool {
 	switch e {
-	case Converged:
+	case NonlinearConverged:
 		return true
-	case IterationLimit:
+	case NonlinearIterationLimit:
 		return true
-	case Singular:
+	case NonlinearSingular:
 		return true
-	case Stalled:
+	case NonlinearStalled:
 		return true
 	default:
 		return false
@@ -192,16 +192,16 @@ func (e HealthStatus) Valid() bool {
 
 // Defines values for InjectionInputJudged.
 const (
-	Fail InjectionInputJudged = "fail"
-	Pass InjectionInputJudged = "pass"
+	InjectionJudgedFail InjectionInputJudged = "fail"
+	InjectionJudgedPass InjectionInputJudged = "pass"
 )
 
 // Valid indicates whether the value is a known member of the InjectionInputJudged enum.
 func (e InjectionInputJudged) Valid() bool {
 	switch e {
-	case Fail:
+	case InjectionJudgedFail:
 		return true
-	case Pass:
+	case InjectionJudgedPass:
 		return true
 	default:
 		return false
@@ -210,34 +210,34 @@ func (e InjectionInputJudged) Valid() bool {
 
 // Defines values for InjectionInputKind.
 const (
-	CalibrationBlank    InjectionInputKind = "calibration_blank"
-	CalibrationStandard InjectionInputKind = "calibration_standard"
-	Ccb                 InjectionInputKind = "ccb"
-	Ccv                 InjectionInputKind = "ccv"
-	Icv                 InjectionInputKind = "icv"
-	MethodBlank         InjectionInputKind = "method_blank"
-	QcSample            InjectionInputKind = "qc_sample"
-	Sample              InjectionInputKind = "sample"
+	InjectionCCB                 InjectionInputKind = "ccb"
+	InjectionCCV                 InjectionInputKind = "ccv"
+	InjectionCalibrationBlank    InjectionInputKind = "calibration_blank"
+	InjectionCalibrationStandard InjectionInputKind = "calibration_standard"
+	InjectionICV                 InjectionInputKind = "icv"
+	InjectionMethodBlank         InjectionInputKind = "method_blank"
+	InjectionQCSample            InjectionInputKind = "qc_sample"
+	InjectionSample              InjectionInputKind = "sample"
 )
 
 // Valid indicates whether the value is a known member of the InjectionInputKind enum.
 func (e InjectionInputKind) Valid() bool {
 	switch e {
-	case CalibrationBlank:
+	case InjectionCCB:
 		return true
-	case CalibrationStandard:
+	case InjectionCCV:
 		return true
-	case Ccb:
+	case InjectionCalibrationBlank:
 		return true
-	case Ccv:
+	case InjectionCalibrationStandard:
 		return true
-	case Icv:
+	case InjectionICV:
 		return true
-	case MethodBlank:
+	case InjectionMethodBlank:
 		return true
-	case QcSample:
+	case InjectionQCSample:
 		return true
-	case Sample:
+	case InjectionSample:
 		return true
 	default:
 		return false
@@ -315,22 +315,67 @@ func (e Model) Valid() bool {
 
 // Defines values for PersonRequestRoles.
 const (
-	Administrator PersonRequestRoles = "administrator"
-	Analyst       PersonRequestRoles = "analyst"
-	QaApprover    PersonRequestRoles = "qa-approver"
-	Reviewer      PersonRequestRoles = "reviewer"
+	RoleAdministrator PersonRequestRoles = "administrator"
+	RoleAnalyst       PersonRequestRoles = "analyst"
+	RoleQAApprover    PersonRequestRoles = "qa-approver"
+	RoleReviewer      PersonRequestRoles = "reviewer"
 )
 
 // Valid indicates whether the value is a known member of the PersonRequestRoles enum.
 func (e PersonRequestRoles) Valid() bool {
 	switch e {
-	case Administrator:
+	case RoleAdministrator:
 		return true
-	case Analyst:
+	case RoleAnalyst:
 		return true
-	case QaApprover:
+	case RoleQAApprover:
 		return true
-	case Reviewer:
+	case RoleReviewer:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for PredictionFlag.
+const (
+	PredictionAboveAsymptote    PredictionFlag = "above_asymptote"
+	PredictionAboveRange        PredictionFlag = "above_range"
+	PredictionAmbiguousRoot     PredictionFlag = "ambiguous_root"
+	PredictionBelowAsymptote    PredictionFlag = "below_asymptote"
+	PredictionBelowLOD          PredictionFlag = "below_lod"
+	PredictionBelowLOQ          PredictionFlag = "below_loq"
+	PredictionBelowRange        PredictionFlag = "below_range"
+	PredictionExtrapolated      PredictionFlag = "extrapolated"
+	PredictionNegative          PredictionFlag = "negative"
+	PredictionNoRootInRange     PredictionFlag = "no_root_in_range"
+	PredictionUnboundedInterval PredictionFlag = "unbounded_interval"
+)
+
+// Valid indicates whether the value is a known member of the PredictionFlag enum.
+func (e PredictionFlag) Valid() bool {
+	switch e {
+	case PredictionAboveAsymptote:
+		return true
+	case PredictionAboveRange:
+		return true
+	case PredictionAmbiguousRoot:
+		return true
+	case PredictionBelowAsymptote:
+		return true
+	case PredictionBelowLOD:
+		return true
+	case PredictionBelowLOQ:
+		return true
+	case PredictionBelowRange:
+		return true
+	case PredictionExtrapolated:
+		return true
+	case PredictionNegative:
+		return true
+	case PredictionNoRootInRange:
+		return true
+	case PredictionUnboundedInterval:
 		return true
 	default:
 		return false
@@ -393,16 +438,16 @@ func (e ReleaseState) Valid() bool {
 
 // Defines values for ReportedValueFactorsOp.
 const (
-	Empty ReportedValueFactorsOp = "×"
-	N1    ReportedValueFactorsOp = "÷"
+	FactorDivide   ReportedValueFactorsOp = "÷"
+	FactorMultiply ReportedValueFactorsOp = "×"
 )
 
 // Valid indicates whether the value is a known member of the ReportedValueFactorsOp enum.
 func (e ReportedValueFactorsOp) Valid() bool {
 	switch e {
-	case Empty:
+	case FactorDivide:
 		return true
-	case N1:
+	case FactorMultiply:
 		return true
 	default:
 		return false
@@ -421,6 +466,90 @@ func (e ResultEventKind) Valid() bool {
 	case ResultEventCreated:
 		return true
 	case ResultEventStateChanged:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for ResultEventCause.
+const (
+	CauseExclusion    ResultEventCause = "curve.exclusion"
+	CauseReview       ResultEventCause = "curve.review"
+	CauseRunCreate    ResultEventCause = "run.create"
+	CauseSamplesAdd   ResultEventCause = "samples.add"
+	CauseVerification ResultEventCause = "curve.verification"
+)
+
+// Valid indicates whether the value is a known member of the ResultEventCause enum.
+func (e ResultEventCause) Valid() bool {
+	switch e {
+	case CauseExclusion:
+		return true
+	case CauseReview:
+		return true
+	case CauseRunCreate:
+		return true
+	case CauseSamplesAdd:
+		return true
+	case CauseVerification:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for ResultFlag.
+const (
+	ResultAboveAsymptote    ResultFlag = "above_asymptote"
+	ResultAboveRange        ResultFlag = "above_range"
+	ResultAmbiguousRoot     ResultFlag = "ambiguous_root"
+	ResultBelowAsymptote    ResultFlag = "below_asymptote"
+	ResultBelowLOD          ResultFlag = "below_lod"
+	ResultBelowLOQ          ResultFlag = "below_loq"
+	ResultBelowRange        ResultFlag = "below_range"
+	ResultExtrapolated      ResultFlag = "extrapolated"
+	ResultISOutsideWindow   ResultFlag = "is_outside_window"
+	ResultNegative          ResultFlag = "negative"
+	ResultNoCurve           ResultFlag = "no_curve"
+	ResultNoRootInRange     ResultFlag = "no_root_in_range"
+	ResultNotQuantifiable   ResultFlag = "not_quantifiable"
+	ResultSequenceWithheld  ResultFlag = "sequence_withheld"
+	ResultUnboundedInterval ResultFlag = "unbounded_interval"
+)
+
+// Valid indicates whether the value is a known member of the ResultFlag enum.
+func (e ResultFlag) Valid() bool {
+	switch e {
+	case ResultAboveAsymptote:
+		return true
+	case ResultAboveRange:
+		return true
+	case ResultAmbiguousRoot:
+		return true
+	case ResultBelowAsymptote:
+		return true
+	case ResultBelowLOD:
+		return true
+	case ResultBelowLOQ:
+		return true
+	case ResultBelowRange:
+		return true
+	case ResultExtrapolated:
+		return true
+	case ResultISOutsideWindow:
+		return true
+	case ResultNegative:
+		return true
+	case ResultNoCurve:
+		return true
+	case ResultNoRootInRange:
+		return true
+	case ResultNotQuantifiable:
+		return true
+	case ResultSequenceWithheld:
+		return true
+	case ResultUnboundedInterval:
 		return true
 	default:
 		return false
@@ -489,19 +618,19 @@ func (e Scope) Valid() bool {
 
 // Defines values for SequenceRecordState.
 const (
-	Provisional SequenceRecordState = "provisional"
-	Reportable  SequenceRecordState = "reportable"
-	Withheld    SequenceRecordState = "withheld"
+	SequenceProvisional SequenceRecordState = "provisional"
+	SequenceReportable  SequenceRecordState = "reportable"
+	SequenceWithheld    SequenceRecordState = "withheld"
 )
 
 // Valid indicates whether the value is a known member of the SequenceRecordState enum.
 func (e SequenceRecordState) Valid() bool {
 	switch e {
-	case Provisional:
+	case SequenceProvisional:
 		return true
-	case Reportable:
+	case SequenceReportable:
 		return true
-	case Withheld:
+	case SequenceWithheld:
 		return true
 	default:
 		return false
@@ -555,16 +684,16 @@ func (e SignatureMeaning) Valid() bool {
 
 // Defines values for SignatureRequestDecision.
 const (
-	Approve SignatureRequestDecision = "approve"
-	Reject  SignatureRequestDecision = "reject"
+	SignatureDecisionApprove SignatureRequestDecision = "approve"
+	SignatureDecisionReject  SignatureRequestDecision = "reject"
 )
 
 // Valid indicates whether the value is a known member of the SignatureRequestDecision enum.
 func (e SignatureRequestDecision) Valid() bool {
 	switch e {
-	case Approve:
+	case SignatureDecisionApprove:
 		return true
-	case Reject:
+	case SignatureDecisionReject:
 		return true
 	default:
 		return false
@@ -1607,6 +1736,19 @@ type PredictionBatchResponse struct {
 	Predictions []PredictionResponse `json:"predictions"`
 }
 
+// PredictionFlag A fact about an inverse prediction. `below_range`, `above_range`: the
+// response lies below the lowest or above the highest accepted
+// standard (`extrapolated` is set with either); `below_lod`,
+// `below_loq`: below the detection or quantification limit; `negative`:
+// a negative point estimate; `no_root_in_range`: no concentration on the
+// calibrated branch gives the response; `ambiguous_root`: two
+// concentrations in the working range give it (none is reported);
+// `unbounded_interval`: no finite confidence interval;
+// `above_asymptote`, `below_asymptote` (non-linear models): the response
+// is at or beyond the highest or lowest response the curve approaches,
+// so no concentration gives it.
+type PredictionFlag string
+
 // PredictionRequest defines model for PredictionRequest.
 type PredictionRequest struct {
 	// Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
@@ -1643,14 +1785,9 @@ type PredictionResult struct {
 	Concentration *float64 `json:"concentration"`
 	Dilution      float64  `json:"dilution"`
 
-	// Flags `below_range`, `above_range`, `extrapolated`, `below_lod`,
-	// `below_loq`, `negative`, `no_root_in_range`, `ambiguous_root`
-	// (two concentrations in the working range give the response: none
-	// is reported), `unbounded_interval`.
-	// Stored sample results may also carry `no_curve` and
-	// `not_quantifiable` (see `SampleResult`).
-	Flags []string `json:"flags"`
-	ID    string   `json:"id"`
+	// Flags Facts about the prediction (schema `PredictionFlag`).
+	Flags []PredictionFlag `json:"flags"`
+	ID    string           `json:"id"`
 
 	// Interval Confidence interval of the concentration. When `bounded` is false, `low` and `high` are null.
 	Interval Interval `json:"interval"`
@@ -1849,16 +1986,18 @@ type ResultEvent struct {
 	Analyte    string    `json:"analyte"`
 	At         Timestamp `json:"at"`
 
-	// Cause `run.create`, `samples.add`, `curve.review`, `curve.verification` or `curve.exclusion`.
-	Cause         string   `json:"cause"`
-	Concentration *float64 `json:"concentration"`
-	CurveID       UUID     `json:"curve_id"`
+	// Cause The write that caused a result event: `run.create` (a run with
+	// samples), `samples.add` (samples added to a run), `curve.review`,
+	// `curve.verification` or `curve.exclusion`.
+	Cause         ResultEventCause `json:"cause"`
+	Concentration *float64         `json:"concentration"`
+	CurveID       UUID             `json:"curve_id"`
 
 	// Dilution The dilution factor applied after inversion (the concentration is the curve's value × dilution).
 	Dilution float64 `json:"dilution"`
 
 	// Flags The result's flags, as on `SampleResult`.
-	Flags []string `json:"flags"`
+	Flags []ResultFlag `json:"flags"`
 
 	// Interval Confidence interval of the concentration. When `bounded` is false, `low` and `high` are null.
 	Interval       Interval        `json:"interval"`
@@ -1894,6 +2033,11 @@ type ResultEvent struct {
 // ResultEventKind defines model for ResultEvent.Kind.
 type ResultEventKind string
 
+// ResultEventCause The write that caused a result event: `run.create` (a run with
+// samples), `samples.add` (samples added to a run), `curve.review`,
+// `curve.verification` or `curve.exclusion`.
+type ResultEventCause string
+
 // ResultFeed defines model for ResultFeed.
 type ResultFeed struct {
 	// Cautions What the result is and is not: acceptance against configured default
@@ -1909,6 +2053,14 @@ type ResultFeed struct {
 	// NextCursor Pass as `cursor` for the next page; never null on the feed.
 	NextCursor string `json:"next_cursor"`
 }
+
+// ResultFlag A flag of a stored sample result: every `PredictionFlag`, and
+// `no_curve` (the curve could not be fitted), `not_quantifiable` (the
+// engine refused the readings; `interval_method` says why),
+// `is_outside_window` (the internal standard's recovery lies outside
+// the method's window; the result is withheld) or `sequence_withheld`
+// (the run's injection sequence withholds the result; see `sequence`).
+type ResultFlag string
 
 // ResultQualifier defines model for ResultQualifier.
 type ResultQualifier struct {
@@ -2147,10 +2299,8 @@ type SampleResult struct {
 	// Dilution The dilution factor applied after inversion (reported = curve value × dilution).
 	Dilution float64 `json:"dilution"`
 
-	// Flags The prediction flags of `POST /v1/curves/{id}/predictions`, and
-	// `no_curve` (the curve could not be fitted) or `not_quantifiable`
-	// (the engine refused the readings; `interval_method` says why).
-	Flags []string `json:"flags"`
+	// Flags The prediction flags, and `no_curve` or `not_quantifiable` (schema `ResultFlag`).
+	Flags []ResultFlag `json:"flags"`
 
 	// ID The result's id, as the change feed names it.
 	ID int64 `json:"id"`
@@ -2807,6 +2957,25 @@ type CreateRunParams struct {
 	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
 }
 
+// CreateRunCsvParams defines parameters for CreateRunCsv.
+type CreateRunCsvParams struct {
+	// Method The method name.
+	Method Identifier `form:"method" json:"method"`
+
+	// Instrument The instrument identifier.
+	Instrument Identifier `form:"instrument" json:"instrument"`
+
+	// AcquiredAt When the run was acquired, RFC 3339.
+	AcquiredAt Timestamp `form:"acquired_at" json:"acquired_at"`
+
+	// Operator Who ran the instrument.
+	Operator *Operator `form:"operator,omitempty" json:"operator,omitempty"`
+
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// request safe; see the operation's description.
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
 // GetTrendParams defines parameters for GetTrend.
 type GetTrendParams struct {
 	Instrument Identifier      `form:"instrument" json:"instrument"`
@@ -2979,6 +3148,9 @@ type ServerInterface interface {
 	// CreateRun Post a run and fit its curves
 	// (POST /v1/runs)
 	CreateRun(ctx echo.Context, params CreateRunParams) error
+	// CreateRunCsv Post a run as CSV and fit its curves
+	// (POST /v1/runs/csv)
+	CreateRunCsv(ctx echo.Context, params CreateRunCsvParams) error
 	// GetRun A run as stored
 	// (GET /v1/runs/{id})
 	GetRun(ctx echo.Context, id RunID) error
@@ -3633,6 +3805,62 @@ func (w *ServerInterfaceWrapper) CreateRun(ctx echo.Context) error {
 	return err
 }
 
+// CreateRunCsv converts echo context to params.
+func (w *ServerInterfaceWrapper) CreateRunCsv(ctx echo.Context) error {
+	var err error
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateRunCsvParams
+	// ------------- Required query parameter "method" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "method", ctx.QueryParams(), &params.Method, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter method: %s", err))
+	}
+
+	// ------------- Required query parameter "instrument" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "instrument", ctx.QueryParams(), &params.Instrument, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter instrument: %s", err))
+	}
+
+	// ------------- Required query parameter "acquired_at" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "acquired_at", ctx.QueryParams(), &params.AcquiredAt, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter acquired_at: %s", err))
+	}
+
+	// ------------- Optional query parameter "operator" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "operator", ctx.QueryParams(), &params.Operator, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter operator: %s", err))
+	}
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.CreateRunCsv(ctx, params)
+	return err
+}
+
 // GetRun converts echo context to params.
 func (w *ServerInterfaceWrapper) GetRun(ctx echo.Context) error {
 	var err error
@@ -3930,6 +4158,7 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/metrics", wrapper.GetMetrics, options.OperationMiddlewares["getMetrics"]...)
 	router.GET(options.BaseURL+"/openapi.yaml", wrapper.GetOpenAPI, options.OperationMiddlewares["getOpenAPI"]...)
 	router.POST(options.BaseURL+"/v1/runs", wrapper.CreateRun, options.OperationMiddlewares["createRun"]...)
+	router.POST(options.BaseURL+"/v1/runs/csv", wrapper.CreateRunCsv, options.OperationMiddlewares["createRunCsv"]...)
 	router.GET(options.BaseURL+"/v1/runs/:id", wrapper.GetRun, options.OperationMiddlewares["getRun"]...)
 	router.GET(options.BaseURL+"/v1/curves", wrapper.ListCurves, options.OperationMiddlewares["listCurves"]...)
 	router.GET(options.BaseURL+"/v1/curves/:id", wrapper.GetCurve, options.OperationMiddlewares["getCurve"]...)
@@ -3972,20 +4201,84 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 
 }
 
-type BadRequestApplicationProblemPlusJSONResponse Problem
+type BadRequestResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type BadRequestApplicationProblemPlusJSONResponse struct {
+	Body Problem
 
-type ConflictApplicationProblemPlusJSONResponse Problem
+	Headers BadRequestResponseHeaders
+}
 
-type ForbiddenApplicationProblemPlusJSONResponse Problem
+type ConflictResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type ConflictApplicationProblemPlusJSONResponse struct {
+	Body Problem
 
-type InternalErrorApplicationProblemPlusJSONResponse Problem
+	Headers ConflictResponseHeaders
+}
 
-type NotFoundApplicationProblemPlusJSONResponse Problem
+type ForbiddenResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type ForbiddenApplicationProblemPlusJSONResponse struct {
+	Body Problem
 
-type PayloadTooLargeApplicationProblemPlusJSONResponse Problem
+	Headers ForbiddenResponseHeaders
+}
+
+type InternalErrorResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type InternalErrorApplicationProblemPlusJSONResponse struct {
+	Body Problem
+
+	Headers InternalErrorResponseHeaders
+}
+
+type NotFoundResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type NotFoundApplicationProblemPlusJSONResponse struct {
+	Body Problem
+
+	Headers NotFoundResponseHeaders
+}
+
+type PayloadTooLargeResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type PayloadTooLargeApplicationProblemPlusJSONResponse struct {
+	Body Problem
+
+	Headers PayloadTooLargeResponseHeaders
+}
 
 type ServiceUnavailableResponseHeaders struct {
-	RetryAfter int
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+	RetryAfter         int
 }
 type ServiceUnavailableApplicationProblemPlusJSONResponse struct {
 	Body Problem
@@ -3994,7 +4287,11 @@ type ServiceUnavailableApplicationProblemPlusJSONResponse struct {
 }
 
 type TooManyRequestsResponseHeaders struct {
-	RetryAfter int
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+	RetryAfter         int
 }
 type TooManyRequestsApplicationProblemPlusJSONResponse struct {
 	Body Problem
@@ -4003,7 +4300,11 @@ type TooManyRequestsApplicationProblemPlusJSONResponse struct {
 }
 
 type UnauthorizedResponseHeaders struct {
-	WWWAuthenticate string
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+	WWWAuthenticate    string
 }
 type UnauthorizedApplicationProblemPlusJSONResponse struct {
 	Body Problem
@@ -4011,9 +4312,29 @@ type UnauthorizedApplicationProblemPlusJSONResponse struct {
 	Headers UnauthorizedResponseHeaders
 }
 
-type UnprocessableEntityApplicationProblemPlusJSONResponse Problem
+type UnprocessableEntityResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type UnprocessableEntityApplicationProblemPlusJSONResponse struct {
+	Body Problem
 
-type UnsupportedMediaTypeApplicationProblemPlusJSONResponse Problem
+	Headers UnprocessableEntityResponseHeaders
+}
+
+type UnsupportedMediaTypeResponseHeaders struct {
+	RateLimitLimit     *int
+	RateLimitPolicy    *string
+	RateLimitRemaining *int
+	RateLimitReset     *int
+}
+type UnsupportedMediaTypeApplicationProblemPlusJSONResponse struct {
+	Body Problem
+
+	Headers UnsupportedMediaTypeResponseHeaders
+}
 
 type GetHealthzRequestObject struct {
 }
@@ -4043,10 +4364,22 @@ type GetHealthz500ApplicationProblemPlusJSONResponse struct {
 func (response GetHealthz500ApplicationProblemPlusJSONResponse) VisitGetHealthzResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4077,10 +4410,22 @@ type GetMetrics500ApplicationProblemPlusJSONResponse struct {
 func (response GetMetrics500ApplicationProblemPlusJSONResponse) VisitGetMetricsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4120,10 +4465,22 @@ type GetOpenAPI500ApplicationProblemPlusJSONResponse struct {
 func (response GetOpenAPI500ApplicationProblemPlusJSONResponse) VisitGetOpenAPIResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4157,10 +4514,22 @@ type GetReadyz500ApplicationProblemPlusJSONResponse struct {
 func (response GetReadyz500ApplicationProblemPlusJSONResponse) VisitGetReadyzResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4177,6 +4546,18 @@ func (response GetReadyz503ApplicationProblemPlusJSONResponse) VisitGetReadyzRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4212,10 +4593,22 @@ type SearchAudit400ApplicationProblemPlusJSONResponse struct {
 func (response SearchAudit400ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4232,6 +4625,18 @@ func (response SearchAudit401ApplicationProblemPlusJSONResponse) VisitSearchAudi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -4245,10 +4650,22 @@ type SearchAudit403ApplicationProblemPlusJSONResponse struct {
 func (response SearchAudit403ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4265,6 +4682,18 @@ func (response SearchAudit429ApplicationProblemPlusJSONResponse) VisitSearchAudi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -4278,10 +4707,22 @@ type SearchAudit500ApplicationProblemPlusJSONResponse struct {
 func (response SearchAudit500ApplicationProblemPlusJSONResponse) VisitSearchAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4298,6 +4739,18 @@ func (response SearchAudit503ApplicationProblemPlusJSONResponse) VisitSearchAudi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4333,10 +4786,22 @@ type ListCurves400ApplicationProblemPlusJSONResponse struct {
 func (response ListCurves400ApplicationProblemPlusJSONResponse) VisitListCurvesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4353,6 +4818,18 @@ func (response ListCurves401ApplicationProblemPlusJSONResponse) VisitListCurvesR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -4366,10 +4843,22 @@ type ListCurves403ApplicationProblemPlusJSONResponse struct {
 func (response ListCurves403ApplicationProblemPlusJSONResponse) VisitListCurvesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4386,6 +4875,18 @@ func (response ListCurves429ApplicationProblemPlusJSONResponse) VisitListCurvesR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -4399,10 +4900,22 @@ type ListCurves500ApplicationProblemPlusJSONResponse struct {
 func (response ListCurves500ApplicationProblemPlusJSONResponse) VisitListCurvesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4419,6 +4932,18 @@ func (response ListCurves503ApplicationProblemPlusJSONResponse) VisitListCurvesR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4454,10 +4979,22 @@ type GetCurve400ApplicationProblemPlusJSONResponse struct {
 func (response GetCurve400ApplicationProblemPlusJSONResponse) VisitGetCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4474,6 +5011,18 @@ func (response GetCurve401ApplicationProblemPlusJSONResponse) VisitGetCurveRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -4487,10 +5036,22 @@ type GetCurve403ApplicationProblemPlusJSONResponse struct {
 func (response GetCurve403ApplicationProblemPlusJSONResponse) VisitGetCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4503,10 +5064,22 @@ type GetCurve404ApplicationProblemPlusJSONResponse struct {
 func (response GetCurve404ApplicationProblemPlusJSONResponse) VisitGetCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4523,6 +5096,18 @@ func (response GetCurve429ApplicationProblemPlusJSONResponse) VisitGetCurveRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -4536,10 +5121,22 @@ type GetCurve500ApplicationProblemPlusJSONResponse struct {
 func (response GetCurve500ApplicationProblemPlusJSONResponse) VisitGetCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4556,6 +5153,18 @@ func (response GetCurve503ApplicationProblemPlusJSONResponse) VisitGetCurveRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4591,10 +5200,22 @@ type GetCurveAudit400ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveAudit400ApplicationProblemPlusJSONResponse) VisitGetCurveAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4611,6 +5232,18 @@ func (response GetCurveAudit401ApplicationProblemPlusJSONResponse) VisitGetCurve
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -4624,10 +5257,22 @@ type GetCurveAudit403ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveAudit403ApplicationProblemPlusJSONResponse) VisitGetCurveAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4640,10 +5285,22 @@ type GetCurveAudit404ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveAudit404ApplicationProblemPlusJSONResponse) VisitGetCurveAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4660,6 +5317,18 @@ func (response GetCurveAudit429ApplicationProblemPlusJSONResponse) VisitGetCurve
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -4673,10 +5342,22 @@ type GetCurveAudit500ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveAudit500ApplicationProblemPlusJSONResponse) VisitGetCurveAuditResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4693,6 +5374,18 @@ func (response GetCurveAudit503ApplicationProblemPlusJSONResponse) VisitGetCurve
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4737,10 +5430,22 @@ type CreateExclusion400ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion400ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4757,6 +5462,18 @@ func (response CreateExclusion401ApplicationProblemPlusJSONResponse) VisitCreate
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -4770,10 +5487,22 @@ type CreateExclusion403ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion403ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4786,10 +5515,22 @@ type CreateExclusion404ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion404ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4802,10 +5543,22 @@ type CreateExclusion409ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion409ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4818,10 +5571,22 @@ type CreateExclusion413ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion413ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4834,10 +5599,22 @@ type CreateExclusion415ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion415ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4850,10 +5627,22 @@ type CreateExclusion422ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion422ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4870,6 +5659,18 @@ func (response CreateExclusion429ApplicationProblemPlusJSONResponse) VisitCreate
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -4883,10 +5684,22 @@ type CreateExclusion500ApplicationProblemPlusJSONResponse struct {
 func (response CreateExclusion500ApplicationProblemPlusJSONResponse) VisitCreateExclusionResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4903,6 +5716,18 @@ func (response CreateExclusion503ApplicationProblemPlusJSONResponse) VisitCreate
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -4944,10 +5769,22 @@ type GetCurvePlotPNG400ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotPNG400ApplicationProblemPlusJSONResponse) VisitGetCurvePlotPNGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4964,6 +5801,18 @@ func (response GetCurvePlotPNG401ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -4977,10 +5826,22 @@ type GetCurvePlotPNG403ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotPNG403ApplicationProblemPlusJSONResponse) VisitGetCurvePlotPNGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -4993,10 +5854,22 @@ type GetCurvePlotPNG404ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotPNG404ApplicationProblemPlusJSONResponse) VisitGetCurvePlotPNGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5013,6 +5886,18 @@ func (response GetCurvePlotPNG429ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5026,10 +5911,22 @@ type GetCurvePlotPNG500ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotPNG500ApplicationProblemPlusJSONResponse) VisitGetCurvePlotPNGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5046,6 +5943,18 @@ func (response GetCurvePlotPNG503ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -5087,10 +5996,22 @@ type GetCurvePlotSVG400ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotSVG400ApplicationProblemPlusJSONResponse) VisitGetCurvePlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5107,6 +6028,18 @@ func (response GetCurvePlotSVG401ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5120,10 +6053,22 @@ type GetCurvePlotSVG403ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotSVG403ApplicationProblemPlusJSONResponse) VisitGetCurvePlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5136,10 +6081,22 @@ type GetCurvePlotSVG404ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotSVG404ApplicationProblemPlusJSONResponse) VisitGetCurvePlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5156,6 +6113,18 @@ func (response GetCurvePlotSVG429ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5169,10 +6138,22 @@ type GetCurvePlotSVG500ApplicationProblemPlusJSONResponse struct {
 func (response GetCurvePlotSVG500ApplicationProblemPlusJSONResponse) VisitGetCurvePlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5189,6 +6170,18 @@ func (response GetCurvePlotSVG503ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -5225,10 +6218,22 @@ type CreatePredictions400ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions400ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5245,6 +6250,18 @@ func (response CreatePredictions401ApplicationProblemPlusJSONResponse) VisitCrea
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5258,10 +6275,22 @@ type CreatePredictions403ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions403ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5274,10 +6303,22 @@ type CreatePredictions404ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions404ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5290,10 +6331,22 @@ type CreatePredictions409ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions409ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5306,10 +6359,22 @@ type CreatePredictions413ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions413ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5322,10 +6387,22 @@ type CreatePredictions415ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions415ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5338,10 +6415,22 @@ type CreatePredictions422ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions422ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5358,6 +6447,18 @@ func (response CreatePredictions429ApplicationProblemPlusJSONResponse) VisitCrea
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5371,10 +6472,22 @@ type CreatePredictions500ApplicationProblemPlusJSONResponse struct {
 func (response CreatePredictions500ApplicationProblemPlusJSONResponse) VisitCreatePredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5391,6 +6504,18 @@ func (response CreatePredictions503ApplicationProblemPlusJSONResponse) VisitCrea
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -5426,10 +6551,22 @@ type RecalculateCurve400ApplicationProblemPlusJSONResponse struct {
 func (response RecalculateCurve400ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5446,6 +6583,18 @@ func (response RecalculateCurve401ApplicationProblemPlusJSONResponse) VisitRecal
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5459,10 +6608,22 @@ type RecalculateCurve403ApplicationProblemPlusJSONResponse struct {
 func (response RecalculateCurve403ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5475,10 +6636,22 @@ type RecalculateCurve404ApplicationProblemPlusJSONResponse struct {
 func (response RecalculateCurve404ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5495,6 +6668,18 @@ func (response RecalculateCurve429ApplicationProblemPlusJSONResponse) VisitRecal
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5508,10 +6693,22 @@ type RecalculateCurve500ApplicationProblemPlusJSONResponse struct {
 func (response RecalculateCurve500ApplicationProblemPlusJSONResponse) VisitRecalculateCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5528,6 +6725,18 @@ func (response RecalculateCurve503ApplicationProblemPlusJSONResponse) VisitRecal
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -5569,10 +6778,22 @@ type GetCurveRecordPDF400ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveRecordPDF400ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5589,6 +6810,18 @@ func (response GetCurveRecordPDF401ApplicationProblemPlusJSONResponse) VisitGetC
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5602,10 +6835,22 @@ type GetCurveRecordPDF403ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveRecordPDF403ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5618,10 +6863,22 @@ type GetCurveRecordPDF404ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveRecordPDF404ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5638,6 +6895,18 @@ func (response GetCurveRecordPDF429ApplicationProblemPlusJSONResponse) VisitGetC
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5651,10 +6920,22 @@ type GetCurveRecordPDF500ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveRecordPDF500ApplicationProblemPlusJSONResponse) VisitGetCurveRecordPDFResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5671,6 +6952,18 @@ func (response GetCurveRecordPDF503ApplicationProblemPlusJSONResponse) VisitGetC
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -5707,10 +7000,22 @@ type ReviewCurve400ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve400ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5727,6 +7032,18 @@ func (response ReviewCurve401ApplicationProblemPlusJSONResponse) VisitReviewCurv
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5740,10 +7057,22 @@ type ReviewCurve403ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve403ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5756,10 +7085,22 @@ type ReviewCurve404ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve404ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5772,10 +7113,22 @@ type ReviewCurve409ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve409ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5788,10 +7141,22 @@ type ReviewCurve413ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve413ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5804,10 +7169,22 @@ type ReviewCurve415ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve415ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5820,10 +7197,22 @@ type ReviewCurve422ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve422ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5840,6 +7229,18 @@ func (response ReviewCurve429ApplicationProblemPlusJSONResponse) VisitReviewCurv
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5853,10 +7254,22 @@ type ReviewCurve500ApplicationProblemPlusJSONResponse struct {
 func (response ReviewCurve500ApplicationProblemPlusJSONResponse) VisitReviewCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5873,6 +7286,18 @@ func (response ReviewCurve503ApplicationProblemPlusJSONResponse) VisitReviewCurv
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -5908,10 +7333,22 @@ type ListCurveSignatures400ApplicationProblemPlusJSONResponse struct {
 func (response ListCurveSignatures400ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5928,6 +7365,18 @@ func (response ListCurveSignatures401ApplicationProblemPlusJSONResponse) VisitLi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -5941,10 +7390,22 @@ type ListCurveSignatures403ApplicationProblemPlusJSONResponse struct {
 func (response ListCurveSignatures403ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5957,10 +7418,22 @@ type ListCurveSignatures404ApplicationProblemPlusJSONResponse struct {
 func (response ListCurveSignatures404ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -5977,6 +7450,18 @@ func (response ListCurveSignatures429ApplicationProblemPlusJSONResponse) VisitLi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -5990,10 +7475,22 @@ type ListCurveSignatures500ApplicationProblemPlusJSONResponse struct {
 func (response ListCurveSignatures500ApplicationProblemPlusJSONResponse) VisitListCurveSignaturesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6010,6 +7507,18 @@ func (response ListCurveSignatures503ApplicationProblemPlusJSONResponse) VisitLi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -6046,10 +7555,22 @@ type SignCurve400ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve400ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6066,6 +7587,18 @@ func (response SignCurve401ApplicationProblemPlusJSONResponse) VisitSignCurveRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -6079,10 +7612,22 @@ type SignCurve403ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve403ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6095,10 +7640,22 @@ type SignCurve404ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve404ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6111,10 +7668,22 @@ type SignCurve409ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve409ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6127,10 +7696,22 @@ type SignCurve413ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve413ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6143,10 +7724,22 @@ type SignCurve415ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve415ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6159,10 +7752,22 @@ type SignCurve422ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve422ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6179,6 +7784,18 @@ func (response SignCurve429ApplicationProblemPlusJSONResponse) VisitSignCurveRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -6192,10 +7809,22 @@ type SignCurve500ApplicationProblemPlusJSONResponse struct {
 func (response SignCurve500ApplicationProblemPlusJSONResponse) VisitSignCurveResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6212,6 +7841,18 @@ func (response SignCurve503ApplicationProblemPlusJSONResponse) VisitSignCurveRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -6247,10 +7888,22 @@ type ListVerifications400ApplicationProblemPlusJSONResponse struct {
 func (response ListVerifications400ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6267,6 +7920,18 @@ func (response ListVerifications401ApplicationProblemPlusJSONResponse) VisitList
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -6280,10 +7945,22 @@ type ListVerifications403ApplicationProblemPlusJSONResponse struct {
 func (response ListVerifications403ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6296,10 +7973,22 @@ type ListVerifications404ApplicationProblemPlusJSONResponse struct {
 func (response ListVerifications404ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6316,6 +8005,18 @@ func (response ListVerifications429ApplicationProblemPlusJSONResponse) VisitList
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -6329,10 +8030,22 @@ type ListVerifications500ApplicationProblemPlusJSONResponse struct {
 func (response ListVerifications500ApplicationProblemPlusJSONResponse) VisitListVerificationsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6349,6 +8062,18 @@ func (response ListVerifications503ApplicationProblemPlusJSONResponse) VisitList
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -6385,10 +8110,22 @@ type CreateVerification400ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification400ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6405,6 +8142,18 @@ func (response CreateVerification401ApplicationProblemPlusJSONResponse) VisitCre
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -6418,10 +8167,22 @@ type CreateVerification403ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification403ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6434,10 +8195,22 @@ type CreateVerification404ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification404ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6450,10 +8223,22 @@ type CreateVerification409ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification409ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6466,10 +8251,22 @@ type CreateVerification413ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification413ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6482,10 +8279,22 @@ type CreateVerification415ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification415ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6498,10 +8307,22 @@ type CreateVerification422ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification422ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6518,6 +8339,18 @@ func (response CreateVerification429ApplicationProblemPlusJSONResponse) VisitCre
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -6531,10 +8364,22 @@ type CreateVerification500ApplicationProblemPlusJSONResponse struct {
 func (response CreateVerification500ApplicationProblemPlusJSONResponse) VisitCreateVerificationResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6551,6 +8396,18 @@ func (response CreateVerification503ApplicationProblemPlusJSONResponse) VisitCre
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -6587,10 +8444,22 @@ type GetCurveInForce400ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveInForce400ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6607,6 +8476,18 @@ func (response GetCurveInForce401ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -6620,10 +8501,22 @@ type GetCurveInForce403ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveInForce403ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6636,10 +8529,22 @@ type GetCurveInForce404ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveInForce404ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6656,6 +8561,18 @@ func (response GetCurveInForce429ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -6669,10 +8586,22 @@ type GetCurveInForce500ApplicationProblemPlusJSONResponse struct {
 func (response GetCurveInForce500ApplicationProblemPlusJSONResponse) VisitGetCurveInForceResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6689,6 +8618,18 @@ func (response GetCurveInForce503ApplicationProblemPlusJSONResponse) VisitGetCur
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -6725,10 +8666,22 @@ type CreateInstrumentPredictions400ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions400ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6745,6 +8698,18 @@ func (response CreateInstrumentPredictions401ApplicationProblemPlusJSONResponse)
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -6758,10 +8723,22 @@ type CreateInstrumentPredictions403ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions403ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6774,10 +8751,22 @@ type CreateInstrumentPredictions404ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions404ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6790,10 +8779,22 @@ type CreateInstrumentPredictions409ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions409ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6806,10 +8807,22 @@ type CreateInstrumentPredictions413ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions413ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6822,10 +8835,22 @@ type CreateInstrumentPredictions415ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions415ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6838,10 +8863,22 @@ type CreateInstrumentPredictions422ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions422ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6858,6 +8895,18 @@ func (response CreateInstrumentPredictions429ApplicationProblemPlusJSONResponse)
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -6871,10 +8920,22 @@ type CreateInstrumentPredictions500ApplicationProblemPlusJSONResponse struct {
 func (response CreateInstrumentPredictions500ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6891,6 +8952,18 @@ func (response CreateInstrumentPredictions503ApplicationProblemPlusJSONResponse)
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -6927,10 +9000,22 @@ type CreateInstrumentPredictionBatch400ApplicationProblemPlusJSONResponse struct
 func (response CreateInstrumentPredictionBatch400ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6947,6 +9032,18 @@ func (response CreateInstrumentPredictionBatch401ApplicationProblemPlusJSONRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -6960,10 +9057,22 @@ type CreateInstrumentPredictionBatch403ApplicationProblemPlusJSONResponse struct
 func (response CreateInstrumentPredictionBatch403ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6976,10 +9085,22 @@ type CreateInstrumentPredictionBatch404ApplicationProblemPlusJSONResponse struct
 func (response CreateInstrumentPredictionBatch404ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -6992,10 +9113,22 @@ type CreateInstrumentPredictionBatch409ApplicationProblemPlusJSONResponse struct
 func (response CreateInstrumentPredictionBatch409ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7008,10 +9141,22 @@ type CreateInstrumentPredictionBatch413ApplicationProblemPlusJSONResponse struct
 func (response CreateInstrumentPredictionBatch413ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7024,10 +9169,22 @@ type CreateInstrumentPredictionBatch415ApplicationProblemPlusJSONResponse struct
 func (response CreateInstrumentPredictionBatch415ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7040,10 +9197,22 @@ type CreateInstrumentPredictionBatch422ApplicationProblemPlusJSONResponse struct
 func (response CreateInstrumentPredictionBatch422ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7060,6 +9229,18 @@ func (response CreateInstrumentPredictionBatch429ApplicationProblemPlusJSONRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7073,10 +9254,22 @@ type CreateInstrumentPredictionBatch500ApplicationProblemPlusJSONResponse struct
 func (response CreateInstrumentPredictionBatch500ApplicationProblemPlusJSONResponse) VisitCreateInstrumentPredictionBatchResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7093,6 +9286,18 @@ func (response CreateInstrumentPredictionBatch503ApplicationProblemPlusJSONRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7127,10 +9332,22 @@ type ListMethods400ApplicationProblemPlusJSONResponse struct {
 func (response ListMethods400ApplicationProblemPlusJSONResponse) VisitListMethodsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7147,6 +9364,18 @@ func (response ListMethods401ApplicationProblemPlusJSONResponse) VisitListMethod
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -7160,10 +9389,22 @@ type ListMethods403ApplicationProblemPlusJSONResponse struct {
 func (response ListMethods403ApplicationProblemPlusJSONResponse) VisitListMethodsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7180,6 +9421,18 @@ func (response ListMethods429ApplicationProblemPlusJSONResponse) VisitListMethod
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7193,10 +9446,22 @@ type ListMethods500ApplicationProblemPlusJSONResponse struct {
 func (response ListMethods500ApplicationProblemPlusJSONResponse) VisitListMethodsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7213,6 +9478,18 @@ func (response ListMethods503ApplicationProblemPlusJSONResponse) VisitListMethod
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7270,10 +9547,22 @@ type CreateMethod400ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod400ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7290,6 +9579,18 @@ func (response CreateMethod401ApplicationProblemPlusJSONResponse) VisitCreateMet
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -7303,10 +9604,22 @@ type CreateMethod403ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod403ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7319,10 +9632,22 @@ type CreateMethod409ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod409ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7335,10 +9660,22 @@ type CreateMethod413ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod413ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7351,10 +9688,22 @@ type CreateMethod415ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod415ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7367,10 +9716,22 @@ type CreateMethod422ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod422ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7387,6 +9748,18 @@ func (response CreateMethod429ApplicationProblemPlusJSONResponse) VisitCreateMet
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7400,10 +9773,22 @@ type CreateMethod500ApplicationProblemPlusJSONResponse struct {
 func (response CreateMethod500ApplicationProblemPlusJSONResponse) VisitCreateMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7420,6 +9805,18 @@ func (response CreateMethod503ApplicationProblemPlusJSONResponse) VisitCreateMet
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7456,10 +9853,22 @@ type GetMethod400ApplicationProblemPlusJSONResponse struct {
 func (response GetMethod400ApplicationProblemPlusJSONResponse) VisitGetMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7476,6 +9885,18 @@ func (response GetMethod401ApplicationProblemPlusJSONResponse) VisitGetMethodRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -7489,10 +9910,22 @@ type GetMethod403ApplicationProblemPlusJSONResponse struct {
 func (response GetMethod403ApplicationProblemPlusJSONResponse) VisitGetMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7505,10 +9938,22 @@ type GetMethod404ApplicationProblemPlusJSONResponse struct {
 func (response GetMethod404ApplicationProblemPlusJSONResponse) VisitGetMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7525,6 +9970,18 @@ func (response GetMethod429ApplicationProblemPlusJSONResponse) VisitGetMethodRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7538,10 +9995,22 @@ type GetMethod500ApplicationProblemPlusJSONResponse struct {
 func (response GetMethod500ApplicationProblemPlusJSONResponse) VisitGetMethodResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7558,6 +10027,18 @@ func (response GetMethod503ApplicationProblemPlusJSONResponse) VisitGetMethodRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7592,10 +10073,22 @@ type ListPeople400ApplicationProblemPlusJSONResponse struct {
 func (response ListPeople400ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7612,6 +10105,18 @@ func (response ListPeople401ApplicationProblemPlusJSONResponse) VisitListPeopleR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -7625,10 +10130,22 @@ type ListPeople403ApplicationProblemPlusJSONResponse struct {
 func (response ListPeople403ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7645,6 +10162,18 @@ func (response ListPeople429ApplicationProblemPlusJSONResponse) VisitListPeopleR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7658,10 +10187,22 @@ type ListPeople500ApplicationProblemPlusJSONResponse struct {
 func (response ListPeople500ApplicationProblemPlusJSONResponse) VisitListPeopleResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7678,6 +10219,18 @@ func (response ListPeople503ApplicationProblemPlusJSONResponse) VisitListPeopleR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7713,10 +10266,22 @@ type CreatePerson400ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson400ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7733,6 +10298,18 @@ func (response CreatePerson401ApplicationProblemPlusJSONResponse) VisitCreatePer
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -7746,10 +10323,22 @@ type CreatePerson403ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson403ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7762,10 +10351,22 @@ type CreatePerson409ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson409ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7778,10 +10379,22 @@ type CreatePerson413ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson413ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7794,10 +10407,22 @@ type CreatePerson415ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson415ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7810,10 +10435,22 @@ type CreatePerson422ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson422ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7830,6 +10467,18 @@ func (response CreatePerson429ApplicationProblemPlusJSONResponse) VisitCreatePer
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7843,10 +10492,22 @@ type CreatePerson500ApplicationProblemPlusJSONResponse struct {
 func (response CreatePerson500ApplicationProblemPlusJSONResponse) VisitCreatePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7863,6 +10524,18 @@ func (response CreatePerson503ApplicationProblemPlusJSONResponse) VisitCreatePer
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -7898,10 +10571,22 @@ type DisablePerson400ApplicationProblemPlusJSONResponse struct {
 func (response DisablePerson400ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7918,6 +10603,18 @@ func (response DisablePerson401ApplicationProblemPlusJSONResponse) VisitDisableP
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -7931,10 +10628,22 @@ type DisablePerson403ApplicationProblemPlusJSONResponse struct {
 func (response DisablePerson403ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7947,10 +10656,22 @@ type DisablePerson404ApplicationProblemPlusJSONResponse struct {
 func (response DisablePerson404ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -7967,6 +10688,18 @@ func (response DisablePerson429ApplicationProblemPlusJSONResponse) VisitDisableP
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -7980,10 +10713,22 @@ type DisablePerson500ApplicationProblemPlusJSONResponse struct {
 func (response DisablePerson500ApplicationProblemPlusJSONResponse) VisitDisablePersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8000,6 +10745,18 @@ func (response DisablePerson503ApplicationProblemPlusJSONResponse) VisitDisableP
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -8035,10 +10792,22 @@ type UnlockPerson400ApplicationProblemPlusJSONResponse struct {
 func (response UnlockPerson400ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8055,6 +10824,18 @@ func (response UnlockPerson401ApplicationProblemPlusJSONResponse) VisitUnlockPer
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8068,10 +10849,22 @@ type UnlockPerson403ApplicationProblemPlusJSONResponse struct {
 func (response UnlockPerson403ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8084,10 +10877,22 @@ type UnlockPerson404ApplicationProblemPlusJSONResponse struct {
 func (response UnlockPerson404ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8104,6 +10909,18 @@ func (response UnlockPerson429ApplicationProblemPlusJSONResponse) VisitUnlockPer
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -8117,10 +10934,22 @@ type UnlockPerson500ApplicationProblemPlusJSONResponse struct {
 func (response UnlockPerson500ApplicationProblemPlusJSONResponse) VisitUnlockPersonResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8137,6 +10966,18 @@ func (response UnlockPerson503ApplicationProblemPlusJSONResponse) VisitUnlockPer
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -8172,10 +11013,22 @@ type ListResultEvents400ApplicationProblemPlusJSONResponse struct {
 func (response ListResultEvents400ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8192,6 +11045,18 @@ func (response ListResultEvents401ApplicationProblemPlusJSONResponse) VisitListR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8205,10 +11070,22 @@ type ListResultEvents403ApplicationProblemPlusJSONResponse struct {
 func (response ListResultEvents403ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8225,6 +11102,18 @@ func (response ListResultEvents429ApplicationProblemPlusJSONResponse) VisitListR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -8238,10 +11127,22 @@ type ListResultEvents500ApplicationProblemPlusJSONResponse struct {
 func (response ListResultEvents500ApplicationProblemPlusJSONResponse) VisitListResultEventsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8258,6 +11159,18 @@ func (response ListResultEvents503ApplicationProblemPlusJSONResponse) VisitListR
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -8293,10 +11206,22 @@ type GetResult400ApplicationProblemPlusJSONResponse struct {
 func (response GetResult400ApplicationProblemPlusJSONResponse) VisitGetResultResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8313,6 +11238,18 @@ func (response GetResult401ApplicationProblemPlusJSONResponse) VisitGetResultRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8326,10 +11263,22 @@ type GetResult403ApplicationProblemPlusJSONResponse struct {
 func (response GetResult403ApplicationProblemPlusJSONResponse) VisitGetResultResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8342,10 +11291,22 @@ type GetResult404ApplicationProblemPlusJSONResponse struct {
 func (response GetResult404ApplicationProblemPlusJSONResponse) VisitGetResultResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8362,6 +11323,18 @@ func (response GetResult429ApplicationProblemPlusJSONResponse) VisitGetResultRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -8375,10 +11348,22 @@ type GetResult500ApplicationProblemPlusJSONResponse struct {
 func (response GetResult500ApplicationProblemPlusJSONResponse) VisitGetResultResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8395,6 +11380,18 @@ func (response GetResult503ApplicationProblemPlusJSONResponse) VisitGetResultRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -8442,10 +11439,22 @@ type CreateRun400ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun400ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8462,6 +11471,18 @@ func (response CreateRun401ApplicationProblemPlusJSONResponse) VisitCreateRunRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8475,10 +11496,22 @@ type CreateRun403ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun403ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8491,10 +11524,22 @@ type CreateRun409ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun409ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8507,10 +11552,22 @@ type CreateRun413ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun413ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8523,10 +11580,22 @@ type CreateRun415ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun415ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8539,10 +11608,22 @@ type CreateRun422ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun422ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8559,6 +11640,18 @@ func (response CreateRun429ApplicationProblemPlusJSONResponse) VisitCreateRunRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -8572,10 +11665,22 @@ type CreateRun500ApplicationProblemPlusJSONResponse struct {
 func (response CreateRun500ApplicationProblemPlusJSONResponse) VisitCreateRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8592,6 +11697,334 @@ func (response CreateRun503ApplicationProblemPlusJSONResponse) VisitCreateRunRes
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsvRequestObject struct {
+	Params CreateRunCsvParams
+	Body   io.Reader
+}
+
+type CreateRunCsvResponseObject interface {
+	VisitCreateRunCsvResponse(w http.ResponseWriter) error
+}
+
+type CreateRunCsv201ResponseHeaders struct {
+	IdempotencyReplayed bool
+	Location            string
+}
+
+type CreateRunCsv201JSONResponse struct {
+	Body    RunCreated
+	Headers CreateRunCsv201ResponseHeaders
+}
+
+func (response CreateRunCsv201JSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.Header().Set("Idempotency-Replayed", fmt.Sprint(response.Headers.IdempotencyReplayed))
+	w.Header().Set("Location", fmt.Sprint(response.Headers.Location))
+	w.WriteHeader(201)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv400ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv401ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv403ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv409ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(409)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv413ApplicationProblemPlusJSONResponse struct {
+	PayloadTooLargeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv413ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(413)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv415ApplicationProblemPlusJSONResponse struct {
+	UnsupportedMediaTypeApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv415ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(415)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv422ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv429ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv500ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateRunCsv503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response CreateRunCsv503ApplicationProblemPlusJSONResponse) VisitCreateRunCsvResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -8627,10 +12060,22 @@ type GetRun400ApplicationProblemPlusJSONResponse struct {
 func (response GetRun400ApplicationProblemPlusJSONResponse) VisitGetRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8647,6 +12092,18 @@ func (response GetRun401ApplicationProblemPlusJSONResponse) VisitGetRunResponse(
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8660,10 +12117,22 @@ type GetRun403ApplicationProblemPlusJSONResponse struct {
 func (response GetRun403ApplicationProblemPlusJSONResponse) VisitGetRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8676,10 +12145,22 @@ type GetRun404ApplicationProblemPlusJSONResponse struct {
 func (response GetRun404ApplicationProblemPlusJSONResponse) VisitGetRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8696,6 +12177,18 @@ func (response GetRun429ApplicationProblemPlusJSONResponse) VisitGetRunResponse(
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -8709,10 +12202,22 @@ type GetRun500ApplicationProblemPlusJSONResponse struct {
 func (response GetRun500ApplicationProblemPlusJSONResponse) VisitGetRunResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8729,6 +12234,18 @@ func (response GetRun503ApplicationProblemPlusJSONResponse) VisitGetRunResponse(
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -8818,10 +12335,22 @@ type GetRunResults400ApplicationProblemPlusJSONResponse struct {
 func (response GetRunResults400ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8838,6 +12367,18 @@ func (response GetRunResults401ApplicationProblemPlusJSONResponse) VisitGetRunRe
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8851,10 +12392,22 @@ type GetRunResults403ApplicationProblemPlusJSONResponse struct {
 func (response GetRunResults403ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8867,10 +12420,22 @@ type GetRunResults404ApplicationProblemPlusJSONResponse struct {
 func (response GetRunResults404ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8887,6 +12452,18 @@ func (response GetRunResults429ApplicationProblemPlusJSONResponse) VisitGetRunRe
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -8900,10 +12477,22 @@ type GetRunResults500ApplicationProblemPlusJSONResponse struct {
 func (response GetRunResults500ApplicationProblemPlusJSONResponse) VisitGetRunResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8920,6 +12509,18 @@ func (response GetRunResults503ApplicationProblemPlusJSONResponse) VisitGetRunRe
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -8956,10 +12557,22 @@ type CreateRunSamples400ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples400ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -8976,6 +12589,18 @@ func (response CreateRunSamples401ApplicationProblemPlusJSONResponse) VisitCreat
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -8989,10 +12614,22 @@ type CreateRunSamples403ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples403ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9005,10 +12642,22 @@ type CreateRunSamples404ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples404ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9021,10 +12670,22 @@ type CreateRunSamples409ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples409ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9037,10 +12698,22 @@ type CreateRunSamples413ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples413ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9053,10 +12726,22 @@ type CreateRunSamples415ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples415ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9069,10 +12754,22 @@ type CreateRunSamples422ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples422ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9089,6 +12786,18 @@ func (response CreateRunSamples429ApplicationProblemPlusJSONResponse) VisitCreat
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9102,10 +12811,22 @@ type CreateRunSamples500ApplicationProblemPlusJSONResponse struct {
 func (response CreateRunSamples500ApplicationProblemPlusJSONResponse) VisitCreateRunSamplesResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9122,6 +12843,18 @@ func (response CreateRunSamples503ApplicationProblemPlusJSONResponse) VisitCreat
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9157,10 +12890,22 @@ type GetSampleResults400ApplicationProblemPlusJSONResponse struct {
 func (response GetSampleResults400ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9177,6 +12922,18 @@ func (response GetSampleResults401ApplicationProblemPlusJSONResponse) VisitGetSa
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9190,10 +12947,22 @@ type GetSampleResults403ApplicationProblemPlusJSONResponse struct {
 func (response GetSampleResults403ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9206,10 +12975,22 @@ type GetSampleResults404ApplicationProblemPlusJSONResponse struct {
 func (response GetSampleResults404ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9226,6 +13007,18 @@ func (response GetSampleResults429ApplicationProblemPlusJSONResponse) VisitGetSa
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9239,10 +13032,22 @@ type GetSampleResults500ApplicationProblemPlusJSONResponse struct {
 func (response GetSampleResults500ApplicationProblemPlusJSONResponse) VisitGetSampleResultsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9259,6 +13064,18 @@ func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSa
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9295,10 +13112,22 @@ type WithdrawSignature400ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature400ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9315,6 +13144,18 @@ func (response WithdrawSignature401ApplicationProblemPlusJSONResponse) VisitWith
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9328,10 +13169,22 @@ type WithdrawSignature403ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature403ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9344,10 +13197,22 @@ type WithdrawSignature404ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature404ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9360,10 +13225,22 @@ type WithdrawSignature409ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature409ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9376,10 +13253,22 @@ type WithdrawSignature413ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature413ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9392,10 +13281,22 @@ type WithdrawSignature415ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature415ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9408,10 +13309,22 @@ type WithdrawSignature422ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature422ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9428,6 +13341,18 @@ func (response WithdrawSignature429ApplicationProblemPlusJSONResponse) VisitWith
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9441,10 +13366,22 @@ type WithdrawSignature500ApplicationProblemPlusJSONResponse struct {
 func (response WithdrawSignature500ApplicationProblemPlusJSONResponse) VisitWithdrawSignatureResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9461,6 +13398,18 @@ func (response WithdrawSignature503ApplicationProblemPlusJSONResponse) VisitWith
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9495,10 +13444,22 @@ type ListStandardMaterials400ApplicationProblemPlusJSONResponse struct {
 func (response ListStandardMaterials400ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9515,6 +13476,18 @@ func (response ListStandardMaterials401ApplicationProblemPlusJSONResponse) Visit
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9528,10 +13501,22 @@ type ListStandardMaterials403ApplicationProblemPlusJSONResponse struct {
 func (response ListStandardMaterials403ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9548,6 +13533,18 @@ func (response ListStandardMaterials429ApplicationProblemPlusJSONResponse) Visit
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9561,10 +13558,22 @@ type ListStandardMaterials500ApplicationProblemPlusJSONResponse struct {
 func (response ListStandardMaterials500ApplicationProblemPlusJSONResponse) VisitListStandardMaterialsResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9581,6 +13590,18 @@ func (response ListStandardMaterials503ApplicationProblemPlusJSONResponse) Visit
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9624,10 +13645,22 @@ type CreateStandardMaterial400ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial400ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9644,6 +13677,18 @@ func (response CreateStandardMaterial401ApplicationProblemPlusJSONResponse) Visi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9657,10 +13702,22 @@ type CreateStandardMaterial403ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial403ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9673,10 +13730,22 @@ type CreateStandardMaterial409ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial409ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9689,10 +13758,22 @@ type CreateStandardMaterial413ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial413ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9705,10 +13786,22 @@ type CreateStandardMaterial415ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial415ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9721,10 +13814,22 @@ type CreateStandardMaterial422ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial422ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9741,6 +13846,18 @@ func (response CreateStandardMaterial429ApplicationProblemPlusJSONResponse) Visi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9754,10 +13871,22 @@ type CreateStandardMaterial500ApplicationProblemPlusJSONResponse struct {
 func (response CreateStandardMaterial500ApplicationProblemPlusJSONResponse) VisitCreateStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9774,6 +13903,18 @@ func (response CreateStandardMaterial503ApplicationProblemPlusJSONResponse) Visi
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9809,10 +13950,22 @@ type GetStandardMaterial400ApplicationProblemPlusJSONResponse struct {
 func (response GetStandardMaterial400ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9829,6 +13982,18 @@ func (response GetStandardMaterial401ApplicationProblemPlusJSONResponse) VisitGe
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9842,10 +14007,22 @@ type GetStandardMaterial403ApplicationProblemPlusJSONResponse struct {
 func (response GetStandardMaterial403ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9858,10 +14035,22 @@ type GetStandardMaterial404ApplicationProblemPlusJSONResponse struct {
 func (response GetStandardMaterial404ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9878,6 +14067,18 @@ func (response GetStandardMaterial429ApplicationProblemPlusJSONResponse) VisitGe
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -9891,10 +14092,22 @@ type GetStandardMaterial500ApplicationProblemPlusJSONResponse struct {
 func (response GetStandardMaterial500ApplicationProblemPlusJSONResponse) VisitGetStandardMaterialResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9911,6 +14124,18 @@ func (response GetStandardMaterial503ApplicationProblemPlusJSONResponse) VisitGe
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -9946,10 +14171,22 @@ type CreateToken400ApplicationProblemPlusJSONResponse struct {
 func (response CreateToken400ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9966,6 +14203,18 @@ func (response CreateToken401ApplicationProblemPlusJSONResponse) VisitCreateToke
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -9979,10 +14228,22 @@ type CreateToken403ApplicationProblemPlusJSONResponse struct {
 func (response CreateToken403ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -9995,10 +14256,22 @@ type CreateToken413ApplicationProblemPlusJSONResponse struct {
 func (response CreateToken413ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(413)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10011,10 +14284,22 @@ type CreateToken415ApplicationProblemPlusJSONResponse struct {
 func (response CreateToken415ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(415)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10027,10 +14312,22 @@ type CreateToken422ApplicationProblemPlusJSONResponse struct {
 func (response CreateToken422ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(422)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10047,6 +14344,18 @@ func (response CreateToken429ApplicationProblemPlusJSONResponse) VisitCreateToke
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -10060,10 +14369,22 @@ type CreateToken500ApplicationProblemPlusJSONResponse struct {
 func (response CreateToken500ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10080,6 +14401,18 @@ func (response CreateToken503ApplicationProblemPlusJSONResponse) VisitCreateToke
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -10109,10 +14442,22 @@ type DeleteToken400ApplicationProblemPlusJSONResponse struct {
 func (response DeleteToken400ApplicationProblemPlusJSONResponse) VisitDeleteTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10129,6 +14474,18 @@ func (response DeleteToken401ApplicationProblemPlusJSONResponse) VisitDeleteToke
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -10142,10 +14499,22 @@ type DeleteToken403ApplicationProblemPlusJSONResponse struct {
 func (response DeleteToken403ApplicationProblemPlusJSONResponse) VisitDeleteTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10158,10 +14527,22 @@ type DeleteToken404ApplicationProblemPlusJSONResponse struct {
 func (response DeleteToken404ApplicationProblemPlusJSONResponse) VisitDeleteTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(404)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10178,6 +14559,18 @@ func (response DeleteToken429ApplicationProblemPlusJSONResponse) VisitDeleteToke
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -10191,10 +14584,22 @@ type DeleteToken500ApplicationProblemPlusJSONResponse struct {
 func (response DeleteToken500ApplicationProblemPlusJSONResponse) VisitDeleteTokenResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10211,6 +14616,18 @@ func (response DeleteToken503ApplicationProblemPlusJSONResponse) VisitDeleteToke
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -10246,10 +14663,22 @@ type GetTrend400ApplicationProblemPlusJSONResponse struct {
 func (response GetTrend400ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10266,6 +14695,18 @@ func (response GetTrend401ApplicationProblemPlusJSONResponse) VisitGetTrendRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -10279,10 +14720,22 @@ type GetTrend403ApplicationProblemPlusJSONResponse struct {
 func (response GetTrend403ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10299,6 +14752,18 @@ func (response GetTrend429ApplicationProblemPlusJSONResponse) VisitGetTrendRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -10312,10 +14777,22 @@ type GetTrend500ApplicationProblemPlusJSONResponse struct {
 func (response GetTrend500ApplicationProblemPlusJSONResponse) VisitGetTrendResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10332,6 +14809,18 @@ func (response GetTrend503ApplicationProblemPlusJSONResponse) VisitGetTrendRespo
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -10373,10 +14862,22 @@ type GetTrendPlotSVG400ApplicationProblemPlusJSONResponse struct {
 func (response GetTrendPlotSVG400ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(400)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10393,6 +14894,18 @@ func (response GetTrendPlotSVG401ApplicationProblemPlusJSONResponse) VisitGetTre
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
 	w.WriteHeader(401)
 	_, err := buf.WriteTo(w)
@@ -10406,10 +14919,22 @@ type GetTrendPlotSVG403ApplicationProblemPlusJSONResponse struct {
 func (response GetTrendPlotSVG403ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(403)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10426,6 +14951,18 @@ func (response GetTrendPlotSVG429ApplicationProblemPlusJSONResponse) VisitGetTre
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(429)
 	_, err := buf.WriteTo(w)
@@ -10439,10 +14976,22 @@ type GetTrendPlotSVG500ApplicationProblemPlusJSONResponse struct {
 func (response GetTrendPlotSVG500ApplicationProblemPlusJSONResponse) VisitGetTrendPlotSVGResponse(w http.ResponseWriter) error {
 
 	var buf bytes.Buffer
-	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.WriteHeader(500)
 	_, err := buf.WriteTo(w)
 	return err
@@ -10459,6 +15008,18 @@ func (response GetTrendPlotSVG503ApplicationProblemPlusJSONResponse) VisitGetTre
 		return err
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
 	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
 	w.WriteHeader(503)
 	_, err := buf.WriteTo(w)
@@ -10563,6 +15124,9 @@ type StrictServerInterface interface {
 	// CreateRun Post a run and fit its curves
 	// (POST /v1/runs)
 	CreateRun(ctx context.Context, request CreateRunRequestObject) (CreateRunResponseObject, error)
+	// CreateRunCsv Post a run as CSV and fit its curves
+	// (POST /v1/runs/csv)
+	CreateRunCsv(ctx context.Context, request CreateRunCsvRequestObject) (CreateRunCsvResponseObject, error)
 	// GetRun A run as stored
 	// (GET /v1/runs/{id})
 	GetRun(ctx context.Context, request GetRunRequestObject) (GetRunResponseObject, error)
@@ -11634,6 +16198,33 @@ func (sh *strictHandler) CreateRun(ctx echo.Context, params CreateRunParams) err
 	return nil
 }
 
+// CreateRunCsv operation middleware
+func (sh *strictHandler) CreateRunCsv(ctx echo.Context, params CreateRunCsvParams) error {
+	var request CreateRunCsvRequestObject
+
+	request.Params = params
+
+	request.Body = ctx.Request().Body
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.CreateRunCsv(ctx.Request().Context(), request.(CreateRunCsvRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "CreateRunCsv")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(CreateRunCsvResponseObject); ok {
+		return validResponse.VisitCreateRunCsvResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // GetRun operation middleware
 func (sh *strictHandler) GetRun(ctx echo.Context, id RunID) error {
 	var request GetRunRequestObject
@@ -12025,541 +16616,609 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P1fbxxJlieIfhW7rCkoIssZDFJUZopEAcOkpEp2SSkVKWX2TEVmuNHdgmElD7OQmwXJqJQu+k4DFz2v",
-	"PQ8DzMPFBWZ357kbWGQv9i0b+zbo/gybn2RxzjEzN4/w+EeRyqwZFVAphrvbf7Nj5+/vfL+V6dFYK6Gs",
-	"2Tr4fmsoeC5K/PNU2HJ6NLCihF+5MFkpx1ZqtXWwdSYyrXLDrGZXXFp2Lga6FKyEIlJddLaSrVK8mchS",
-	"5FsHtpyIZMtkQzHiUNVIKjmajLYOusmWnY7F1sGWVFZciHLr3bt3ydaYl3wkrOvG8aS8FCeP5vvwcihY",
-	"Bi/vGSZzaFLC4zG3w61kS/ERVpwv7cq/KcVg62DrVzvVLOzQW7Pz6tXJoy3oz0kuRmNthcqmvxfT+Y4c",
-	"sayQQtntbKiNUOy1mLIWZ1CeScM4u9A6Z9lQy0y0mR1yy0b8tYA3MGFS5D0FXRTGMsMH4pAZIZgdCqbH",
-	"ouTQyj3DojY7PeVHS+tVjTfq6zZ0tjbv/PqpUBd2uHWwu/d5AusQfsOsWytKqPO7Px5t/3u+/efu9sNO",
-	"/2D72+93k929z9/9m62wXMaWUl3Q5Chjy8lIKNu8QjK8ZzIXysqBFGXCuGFjbazI2ZW0QyatYeVEmUWr",
-	"WDVy09U8CY1jt1/wC3E8KY0um7udKnFt+xl+kTI9wOUYl+JS6olhY34hDhk/NzCsgS7x7UCWxuKrMIo3",
-	"E1FOq2FQdVvrdtn1D7p7OlGLjkA5UXd7AN5BeTPWygg8kF/w/JR2K/zKtLJu8fl4XMgM9+vOuNTnhRj9",
-	"5k8GOvr9mi2+oFLUaH2oz3gx0OVI5MxMleXXCbsqtbpgsCOZLhlnl7yYCKYn1sicjg9Ve8BGvmxP/dXZ",
-	"868SxhntYHY1FKVgnKnJ6FyU7FwUWl2YhHHFJuq10leKDaQocijiDgjTZU+VXF0Idil1wa3At7jULJAu",
-	"Oua5FoYpbRlMzRSO7btk61irQSGzDzp7uFGE0ZMyA3JpLLcCNu65BCKOL4n+tDjRVAZbXVyJnPGiFDyf",
-	"Joz3FL2CE6snlnE2kDZhPBSGFzTxfCSYrEgRkkRjZVEwqXow/Iuhbbv5eILdyIX60BNi9WuhWMGz14aJ",
-	"S1g+k+mxYIVEwiQVS6+3/dHZxncm7Wwh0YOdwIvHZanLD9lt3zAT0HKHwTDOdT5lhk8N06qYst6WrH3U",
-	"22Jc5bVFBmLxLtn6StsneqLyDz3vQJnysB2rQyKupbHYsxd8Wmiev9T6KS8vxIfuIM6ouM6EcKfDiPJS",
-	"lPcMy7QayItJKXJWyJGk3p6J8lJm4pXil1wW/Lz44B3OueXn3AiWcQUzeQ5rzbOhyJnSV0kYg8wEcCRm",
-	"OLEWyF+ur1SCBK01QBp6VUqLPIo0eHNzlbnRG6gxd3vsXGR8YgRe26FtaXoKCCtX+fmUWJRZbnI7sJNN",
-	"g3Vf70SMJ473pdbPuJq6S8f8LGTingmnpwTaKQ3Tl6LEGXA74baG+0rxiR3qUv5ZfNCj+UwaI9VFUl2X",
-	"SbgEdQkXgn4tcnYueClKmpWZQX/zzTfbRxM7FMpCL8U8w5J+gaVTuiq4YinSqJRxa0t5PrGCtU6fHLNP",
-	"P3vQbS+XImZZUZq6cakzYQwcwsfKSjv9kDP4jSiKbcelSDWeWOICzkvBXyO3PymE5yXdcTx0M2BSJIuG",
-	"wbHtKT0YCJXDEUX2o6Lgk0K4a/OVMpPxWJdW5M9ELvlLnI8PzVLgkbhn2DG1ug29gMMBVEirGSmG8SwT",
-	"Y2s6yNO6NqALR/gciM0JTBv2Pc8llOHFixIqsFKYrYMBL4yY7UlVmtlhKcxQF7k5xJnEPhRiYIEvZBal",
-	"LuiSUBdSCZSqBnxSWNYyQ2L2ioKufq3ww5GwQ53jVhxH/fh+65xnr/sZL7J+oa/6VheihB70x8TYieus",
-	"mBh5KZ55YZf2L+wObrcOtnI9gYsiAamMPtjtdpMm2Zh4U1jyqs2RVP0xN6Y/KHlG0/D90rrXrvnDjGSo",
-	"R9pkIufGykzaaZ8X4+HK3XiEH71LiMOBRd+wHPB6fT3oD+SmJUdc5dzqskH8Px4K4CCvQPhnAy6LSUn/",
-	"0la7FGUuM3uIP7QditIwXgrG80tpdDlFuc2KkVkpDkI7X/GRoP5cn1Ch3Wp+eVlyEDcnSr6ZCPceVssN",
-	"QBQbj/q6X5q73QqwlQtxKQrjdBT06YO43N68oogKln3zZsJLuijfY//riS2kKPuZ1q9NP7+zwfp2jJ2g",
-	"PuLP4u7aAn3Khut9KUo5cDfGPCWob/u3v370FqTuqAgxf7zMWevk+Oud4+Ov22zEpwxoK+MXXCoQPqzp",
-	"KaVHEiQUlNk77JGjwnvdhHHghNirM/b4xRE7+2b78/1P2TOkwuzzbrf7qKcyXshzd6PEzdMRK/i5LvGo",
-	"3jOOfDMjrIGGmb5yyrM7mPF34Yk+/5PILExodTW90IXMphvebI9RKg2XGtxLA11mIvH3lqlurI2vqPmh",
-	"vv+Fs8nFskbpxdfEGoUbLok1SjVeEWuUq10Qm9PzGgVvINdr9aBGrNcpUSO9N6Kw61DSDUrN0MU1Stap",
-	"3BoFNqFxwOMSnSsKDcowkJIbKZ5hrTwiYovJF7KSK7v5LpZ8/hgv1MzWaNqwC8/N4uOYLCUWywnB7D6p",
-	"78T5c1hbs+aln99G8QFbuobfNlFhvz1m7TZGXiisCGQHnODO1tI7oNt5EN8BnW63u9uwx44UL6ZWrKT2",
-	"dXpNGvv1zRjJ1psJV3ZVEdeZP+C375A7XFnmFXwzuwuxf6584zTHDW0owinGqTTYMrz+MrATIP6WAoRd",
-	"EIlBCDYd9o1TIcx/br1ZpKeq8wl1GD4aF8KwjJfllKXS9INlI2XnAg0HafWIFGek9JZw1VorcicZ9pT/",
-	"jiErwo761ztHfWkCowNlq0FlWmVCWfxWJdgb7vrjRIeTs6jOQgpTs2VcSZXrK9Yaw1lS1qsRPC+kS3OP",
-	"jQRX7OSM+VoOPZvQU592f/qb/7S794D9OmGZHo20YifHL7afnbExnmPgKQalHrGRGOly2sbxFvziQtDs",
-	"g75mKIqcVM60FmBPIaOLNOz6v/+HLvvn/8xyWUyQMv7zf2YD4vF0MRkJ9s8/+OHykZ4oCw/ycso8HQHm",
-	"xoa6pbroKdhpCStBR+268WbCC9j9rh81Xo9nWSlyad0Ml+JiUsA7LHj2/AWMW/QUmukOGa/qYmNRGq2c",
-	"ycPbAkphJoUlbrF+TnORyREvzDxFOYWuglEcFagjrqbMf4zqVMFzWLiK7FhG6mTTianMbjOjGd3MubAC",
-	"Z62PyscF0s8y6cCfmr4/IZtRHmn6tCP7Q3kxXMxzxNzzKoGlqhOuoFup0q9xuZIb+4P/8kwgMQvb8MYz",
-	"XNWwPsVNtqK90Xd7Y36feXnpPmtdDYViqd9lKRxFsku361sqvrd2G/wumuj5JJf28aVYg5rXD0glIczo",
-	"R0EbesUNy7USCROdiw5Ly4nqZKXgVuRpwlKkth0itdVvPh6X+jJ+UgropsjTzrxbQgI9aLLsA7ftKSdZ",
-	"/1BBy6Gi5npmFp5bsW3lSDR9mwvLZdHMRI55aWU2KXhpEiZVVkxQucu9mbVE+wI3WnUavSzia5jbLT/A",
-	"ZCvwYK71bxet41N9seEqikvvFLSWOBPtljl5ZmYEruamvh5zvD3Mgs1DFwQQZtzoKne65gOnWkZGzl/A",
-	"kbEu3INZKa0oJafLbjw5L6QBM9nFROZQuEGHUL9Xeqp+sTgNA9wvoF5m41JkIhdYFS0uO5823DY9FXym",
-	"CsGNcD49fqbndtdIKq/wm5cWUZTccHlhCSdW5PMz/QQ+Z0hYkMWAylmmJ0XOnHHRl8XZUiwFgUDkSHyw",
-	"LZyZlLZkSrbpq+E02trnWheCq/qxmRtzoLzzByrSieBWgB7x0rkTHTI1KYrZEQw5bBWF3iJX+LcNA2lm",
-	"+6EWMueScmi50D+7XYUdijIyIjinL2QNqEdAtXNR1xKjhvhKGuEGFquJ5ydvHZGhpmeglYpmO6qM7PGN",
-	"QylFMD/RqbOV6QTYKjxOjRTUwLkBMXTBOqLTm/8GlmYkuMEzi6xlvJTvvWDN8kzVQ7/jwjQl1SmpC6Bu",
-	"qpaS3WremzwG4aW/iiLaNUY14QFLK5Ef7jyS+dOkp9JI3oc3s6I+PAvSOtApqRU8C/I5VlIKeHMpAvfX",
-	"JztswtIgrmMpkIkmvOiDyA4PnFxusJaRVtpqJTN4k5dyYNMOi56yVpgzIIJuw7SZWwRDchTJV1YDYYF9",
-	"k9liykIlZGZHCUiXr1H84+pCdHyD6HbgV4lxy6S6EMYeYBElroKLqCn0WNSEMxSXUDh4FKyy6LhUuSzC",
-	"20qG2+uykTaWAYlXtqc8V0JtmKRygPpGGHsBoiixKSSyspYRoqfS3z1+yXYud3dsKVRu0naHndSOOpuo",
-	"QhgTk45CGtRgM256Kkxq4s4iFA5GTjwqA+ApgLlRbLfLZvrZU+hpk/h2qIJqqVpI1Ompl/TYDMEE5600",
-	"CNd9qfo5tyL1pLi+GBUlLifK2bnRDOArYCOOt3JhDqNR3zMsFddjOK5hn5rUkVFpe6re5Wp/6TLMZYK9",
-	"RpoLc+iU/2oyWqBWqyvUGlRpsTLMHa+tZCvWfi04W7EmDL+KTlal8MKe+L2/lWzhJiciVZ9qpE3qUpQX",
-	"QiElAsZDGhAJx6UeyEJERMmR42TrehvGvn3JS1wFmAQkU8/AFdhNBD3ws4G/nvLs9fPBE2n9gy/nZwWf",
-	"f8Gz18e1mcHHp2dhdui3m6IzN6rHboLw5Uk0S+5rmqpTmil89ryaLupvNGf44JGbOPzh2zEn6hHNHT4+",
-	"rk0gPnrhZ/GFn0Ty2Kx0N03U3JuzZpQ8TqNRERAQBFdoGEGoDf9bIWGCJ6lEXrPhcr3S20aC3iQLX5GK",
-	"E2gd7sRLXpiEdTsPgPh2Ow8fPlyp/Xz48GFN//mguVe21MVTuErNhnrAs6G4GvISeXeohHyrDGudnD1n",
-	"n33+WXd7r+1ZguCFCt5nhVTodj3LATQJpqiyWNNa4EoU+mrNArj+Ys2Pr3ipQEGwQYd8kXV7NMPzuO7V",
-	"65npSG3USW3SGvkcWqrTSdHI6VRXITCPrfBTWMaLTsKOC6k67HgoRh229xlr7T78fLfN9h/ebx+wdHd7",
-	"z6Q95NpJ03guplrl7Md/2INbu+X63T6ET++bFP19wjf32dmjQ5buQSXMXmlgFJQR2QRoj/8sXPtYI+63",
-	"Q5aebu9TGRYVSaD6nuLn+lKw3+D33jEL2Xb0H79iP/3d3+9Ry/vbuyZlAz0p2XzLPRWa3o2b3u1ep8wK",
-	"VSvi3JHwa9QJ60HgYeqXGkzZVrIF07GVbO3RLxjOVrIF/YF33es1LwdY1F2qAf667//aC89O9/1f+7vh",
-	"O6gfdsaCAIvnY/5mIsAp3AjLKCqCteAYf7o/KaujPQbKoS68JssHqzzY3VsreKW//e1v/k2TTIIhRZta",
-	"KLz6n9RP7JvA0ggOnTR1Cdl9zGGTF8ArZ1oMBjKTQllkpOvMgUlJZM70JS8lV5lI0UlIjMZ2mhCfTCfa",
-	"kMpKCagdmsHvgOwlLHVSJLJh6QCE78TViz5KKIr3FIjiDWptnhGZ6HPbKANWHBxIz/7r+pWxTD/GK6PY",
-	"3LssUvsslWX9d1AGx7SZub3J1B6vzPzATxQb6VwU2+LNhEy+usxFecDgxuEl++N5N2Hnu98m7kFfl/JC",
-	"KvZHfPZmwvOSg2TrvkvY+d63h0xpte0qwNoN8NfpM/jT6Utajk1WLFVa0bedEF7Sx7dpu+Y8tp6PgNMi",
-	"PWiaiMXsxHEDEwHb4ZwkJDRreIVAYC7WMnUnW9Wmb2rXvwMZoZTXvuF41RJmfvzH1l//3//733zz1+2f",
-	"/j//54//B1iNrnD2ou9o5WpTdmtzt3xiSb29/GC52Boe7IxosLR6ozOWDxqMUo59Zrm4KAWYFQdsUAqR",
-	"61HCFNxWbBypbiIrE3nJ9i9FaRoZ35eRARJOBn1PBCpIgRQaZ726H7/f2e10O91m1b3zzNJq1YF+HD58",
-	"l2yBrdI0qTIzCwYR9P6ljlD3nOpNaa95W9sN84m0Twp+0URJhoJfSmEsCZWrKkKB62zIS1TMyXy9cLwk",
-	"DoZsVJoGh54Zm5E0VqrM0vk1XjgZkESy3NxYBF5+6YDoKzgNKL83do9e9UE1vnhT0UfMf9R8PoBLqHV9",
-	"t6nrSF5X9RwJL3ytmo6Pu9+rCWMt3KQ5OgMIrxiZKNSLrJzMQM7XiP+8FF+Fr0F7q2XjJUV+gkGb4liS",
-	"xM+ULpnvcMIuSj0ZQxzH1FFyqegyN7K63tZ3SoY+voBuNR2ImvPYbKwExACKvE6g4RKxohxJRRSlNSGB",
-	"2rle1a7Y9g2V9qg/XDWuU/zoXaSnMfkS0hqmPheXkrpuWtOd63biOfd/+a9X7LdMsSscNzMZL8RNB4Bm",
-	"pZUjoK/c96gY0ng78KJ4Ptg6+OM61ObbWTb4RSkw6FkrxhULtDoc1ZrLDBl7S+G2IdkIyGevvz69m+GU",
-	"G8AI/OTTBws4BDT9zu3t9733jeV2st4pOaNPIw+s+jBeHb96xjJdyXYLnIeCFmmOtnpWqb8W0fvafR2I",
-	"n7sJV5Zzn4EyAjdzP+Mqlzm3YiFpCl+AIj7TpXC68pRPrE6DhxFKNNdA27FiNJEX8rVgLRSEYNeRChum",
-	"KOIkFhRur03GiBod+1420TI/VtAZqmZF4Jf6yjVOIR54yHPH+SjYaYU0Ah2EzGQE/yiPnJFGdKaZLwqj",
-	"Wv8MfxOKzB/klz4+XrAJ9Ak16FoJ5kAsyK+ElodOMYZ64Q0X96aPmnaR33qvXNvZUGsjjEdZMJXAnTBe",
-	"GF3ZFhzTQHuAK9TIBJAGZ0CsNqIT188F7cd8ZlRhuLc+rqir3Lymiw0b/7ModX/IVV64RZ7fXPBJnRgY",
-	"Cs10HovsSpSgVxlb599Q6nySwTGSaiCVtMLvz0NSLfh5UYLxUhux2vuE8CSIgAdGb56tS+qYHV72d7TP",
-	"s2Xxrm6e/SYa47n9pjM5O40z4v38bVITP+vXPYpTddsONBAsRpG8HFizoJYITLNnOCr6Gm6NpKZzqcmJ",
-	"kUpkTg5rVMIiSo56oststWZrRu+zwMVipMkEipsURaj15dBzbmSjD8/U+T94n9oqokUqsPDmppH43Ug/",
-	"5LV8q2/myWjEyylJn2NZCrNYVJcgQPFLokiZADa6ZrF0xhKGCDE1Q4VWYuEELuD5IqmOG9uP3d7Xp0tf",
-	"x6WaSVPB0Q8jrp9xC6TFX0/cpnVXjCZzy5yxAVfA74aEPNeiGW4aVrTWC/f5U2k2dUm88QbaQME4s5Xm",
-	"tAPc9Ee6XLklv+TmmSalQARCtKrUV+LaRoBBc8tgturVRf1ZZ8q/ioXWDdTm6LXHY30nHX2e5+Yggssh",
-	"bWerSWHXTpylRBcEwqEnNtMjQaJGUA8OJipzUFn/8k/IUULUIckgPSWMlSOH1aOyoS5NEmw3wXLOnOW8",
-	"8uOo+ZyA5tx7Qh1/XWlAs9fb3htA5PXrGQTDKdh9c1H2VOrqJ5di8HBOO+yoQpEytuQoHcJUGe/wTgpk",
-	"0+mpF6WACwSvfbzfiSFyLPHEUNckGLWhJ+PwOappe6qVEplKwUVI5X38EgaethsNAjRR84QQNVfgJAl6",
-	"JD1wMxrHIrAWvoXhU8yGw3uA72DiQSIwon3gNBTkpfGnSX5Bys7FbpDzqlX05yR6OPc1vOPh3DfotfRF",
-	"/3oJshzcUHnJrxAOgLNCX8wsL7+Wptkzz21SqNxb5ry/Rk4cQFHgX6GPfe98ZqQCD9Ny3kYXg+P1nZHu",
-	"+yWztVR0dZtxbfrmPCKCsqeq/NP9hbVXW31NadsOheWbfNtfomx0x7e/icpnhnjOzne1svHmq201P4iZ",
-	"DibhQPmNV61B03wtpMW0ApvR4edKzOkHK+i9XPILpQ2QGYiMqX7CAahufWlnwJpYS2lS7usSpKtSa6Jk",
-	"NaKIaiH8gLxkuviJd5Mirc0yhA0irI02qegowqCw3UAanan2Zkq2bNbnZy1DFgYrSsJNai60smGvqW32",
-	"0SV6ecOqg1mi0WhQ8oub9jm4vOFaNsfS7na7P/7QmllUtD7Vprq9U/t5YxUpiXE3Hg8J1GuuexS62o9b",
-	"bsZuK6bMFzCEg4YFbjhSEoEX6ddntc+okTpkXTrPfqvdhjM17a3ZcxNNZehq2MTRMi2Yw2hjzp2uZI5A",
-	"NO7D6EAtJKhnQYk7q97H+A1ES+ywo8qdGP0rxoTQ1Cd1fHoYonkoVlTRkvrLv/71VrLlnXKx2xTLtK7H",
-	"ZtXnF1Trqa80enVU1R89PQ1NhcE7iWXTEK+as8gteIDUbOTr1TfgshB5v3IEmY/2qqwB+JEz/kry0xlz",
-	"Y2If9chvuL0ZG3pr1tvNLKe3afpcAfSwmmZuatS5ud1k3vBxQ8uFU7SuqdX9cJrQWOXYoDWs7/slWsQm",
-	"ivfIBWg3eQjQGzbA6EIErZUid4g8QVhkrRAU8FtHDsk3M4r+bh+yXbpjSP/euTHkzhpu0I9jj5ENeOJV",
-	"tsxOg4ucCyt9r0DR5VZ8z5yTbyH1xN/UpkaVNiDXizm/UhBGoGiSkBfc8VWZpg025wQAclWfoluhkZW6",
-	"zurThlc1U/Za8O3xCOLykc7etTjT1yjKtvkohY23nkS2YEnWD7qvrdW8fOd3jrvxsIGE7W6DY23e6OZx",
-	"GLAO5kvOHt9FYffNweTz22bpBEaA4htMYXWQ1lJgzCxXXT/ixrQ4xnZ2G6+nfH8prm2D0p0MIYL0ig4j",
-	"rZTqNeOWnWs7ZEIBhKWfxcrICTBEhuLSwCEf/nb+XLwUrmjg6mtn6Xb6652hoLWooVmlyczBalp770fX",
-	"EDIA949z2uOzLnsm9tljaY46BeVc7vp0iaYHFDKAzxjCgbKRRs0tV2zIi0EFAmB54X1yXHhe3YsvhdiC",
-	"gbjqh8Nn+gNd9s1eCvEJO+a7PTKQoxWd1Jw9RS1jtyHsmMLxwuRhN+pxbgihFFpI6y79jYPcSrYau7Wm",
-	"EOGm/5GrGlW63/iK3csn4uo0VP9El2d7KDZ4A8XCmGfOwNKAqRBIT2SYi92HK5EsgPiSHAt43qxC/VLw",
-	"wg43pAkVY+lnT7+mjZhP15waavf577d8F06p8Owud001be6Ts/VC8md3PiHkRBhI25HSzkEDxSGsS+F/",
-	"5vmX6vM+fLymemNJhP5y8Jf1QGfmKl2K/jJX57KI9lJkED483aC6TVU/IWZ+hdvE3MhrqpHZhZnpejUn",
-	"0ZRHUepuhUJ3GrdkxUo0RTA6ZBTE0/LiSuJd0BJHqRLv/F+6nToTmfPp/lqBOd/OJpjpJp/ef9cYqnOi",
-	"/kRAR+sBQ88asCoYtrVuv5jd+rYBo+wEzH4lOz7+GnBBqHZImUGWKxfUH9n7nQiFeZKI03KFyIlK5rfV",
-	"tYhw5Ayx/FN64uKK3mR99zupYMfcHVhOVBv180FNcg+BUnFPdBwwUy0DzHo9Pg1F3sGtQXPUtPfcbR5S",
-	"FojCCLK0tgIDhEaFgqvXpl3TqnHjBeJGa9lrSekt/PdRtEJ8EmV2CYfQ/fd8K6l9iO1Wkr3/SbO4lWyF",
-	"yW3sgrN6bAjzu0zeHWvi4VdrgN5z1VadgMoTD4EICd4mvp4oNxHpCCDq2IZTg/sKBeQ1xeY5DtPNgVtj",
-	"PEyNZC9Qs8p6/gW32fBmIofrfl3ouBlJWl/uo91lNrDU+pGeYclZwPAVss7MVFcaK9+Ppnmu1b9ClFrh",
-	"cUZwiM6rwTuIocQBPDYEz13NCqfrKV7qAW5LFY/Vlwumw6y9295ro222Udaf2Gpepfl5pvUvY1ufuFjG",
-	"DTn5aqAhGrIKS4jNmxRHnJ4TxmWFoJWwtNBX7vYGli8Ncb4NlnIq3cwDL8YWWKnSR1ZTj4ValNrPjUwa",
-	"5rrgIuDPp1H3oQJGMfOt3/z0d/+/Nmb/CxqNRe5KyI3OO44FB4SsgM0MrVIWHm6mo7HVFlKqzE1nPI9+",
-	"DuenKqjk1sEJX4S/sKHZFCEWHOyC16/69WzakE+5FbT9b8QRrxXj7WFpuQloXIeV+F6KTMhLkd+MWNyI",
-	"ruWRzWJZqWDbWMskN6tcjXilNTmkJotQRVeqGhsXsgr/3Iy2vBzGmi1vKih4iVBLBmpsUm81aANu4OJi",
-	"fIfrfQL/glh5HDGHBODlPuBF4YMS/fub4KHPOhlQrxpn+SYoNI88uq53wVQ2OCg7RJqEYstnw7IMpo0b",
-	"W5ZmpbQy40UfbWMpSIl+P7SXgdrNLJGvJVsOQQTwOLu7n+/f395jvoxPiDlwUGh2Fp7oup/d1DmqNrib",
-	"dMfPRcKmN+7FIsBViJSxQzGlaBg/uSjiXg2nMOOdBfits5jKi0fl5C5GhaCbND6Y1ZuiSRa6QTw+Of6S",
-	"/WGPhc7R/kvY/c79H3/417/dObtxY28WNta04xO2232vBo28GPFmRiLsjH/9WzxXQdWJR6oew5ViPX0M",
-	"KYD7fU2MiajU+rLwGRT6Ass0x03869+64DkF2h0XstaeDTqzESSeyhcHMbauhjIbUo3ujFB08RlkjZjn",
-	"HPItWsa585gsohvzm3wpguVTfSEb8c4IwvaeAY9ol3km0vN5JZ/X8C1V8D0LDi8bsTEeMHMlKvFsAp6N",
-	"waGdOwVZLWLXgLmhYJKQvhHFoF+FaDe7HMA+gHMyF72IdRgGlWxTJRSZCRhS22IqDMFoSdg8g3YzG9uo",
-	"o1gjQ0QzOE4s263jA7sa6ySaR+QxXZENUE7iWue8KGbiGqGFC3kp1AK0kRl8yYVrhlJL6v3D0oQyoc6u",
-	"3yikGAw1OrVwDOTr1ZH+WaPiELKoIKHo8wvRH+pJUyjGV4GRcDQl1849G8Z1U1jjzTAzHMTt3AC8yyP1",
-	"DIArB7puLKmZatZ1a7uJ61ZUqq/Ha0WChdLP3fcL4IMjR694aVaFuPpezISRhrObxERu8Vw2b5OZUFIi",
-	"eE0UnqjvDeLpaLuvT2KooZXI8L7axX29oTbtBhcGydfr0fUY7XtcSpXJMXf2/7HGbOIclOHIg454Lpyv",
-	"MJLA82nle5agL4h3I7Zedx5yS+HgDljDjVCKwcQIw8wkG1aeyOiPsL+31+6wM2GZtIFqlWIe6R5A7N0F",
-	"BJTTpUWxGogKuJbc/nWzida4fhWtx8HFCsdvkwVZNLqdhw86DffKaj+Zte6PyivCQRihFracKOL0uIKA",
-	"xm092EZYgjlI5J6iXKKtNDgqu8REMd4xLiv5ZSKgc6u6qdozoMcRjPn73z8gaxVaXTgn0djDzI+XQiC9",
-	"vhn0zCRR3IJ/6Oeffb6/Mr/ojS6z9fVGS265RfsArJagt6H5QSrBrzgcd3dsgQicixhKx2vr65RgAQP4",
-	"M92QjmA2X5NNt+FSU8ozv24zGcRJG5yyKfstO++y37Dz3R9/uD5kaQ0cyr13r0IUbdpT9XLw796PP1z/",
-	"+I+EMfz5/qefbu/BkflqDqKxBSo7dS7Ki5/+5j894yW4aOc2IWYdI11F3k5QJqLYOdVTcyGjByzdHxfU",
-	"vZz9BvRCEAOVt3dau/Dzeidrf3feTmrwRT31R56w84RlCcu/PWTpgzWq+O4iYVGxhF18ewgZ+qWpaWAY",
-	"t4grkjCH2O6AQmaURRnrTbrd+4J1CY1UqkFBkmTCzmvvHNK+cyIHwz25PrirjNPHGctZKeEYJD3lngmW",
-	"w74upLo4ZGh/L6XwmZXPoeNKXFDQIFTLXQVUc0/lcjBAR3VMsNVO2EW9X2AhGAkLcPEX7Lds18/E/oun",
-	"CGc/1lfCbSz+4w/X3527+YMJF9fjvuF2QtMRPmrt4tSL71o//d3fn//4w3UbotUXlOrrwcAIS4WnsAUX",
-	"1OCXbdr9tnEjEjdDAer+OBnECQX/jnR3Z/rdXpoE70SM/abRAa79SHA142BI1W8lW7UztJVshYMD4MFj",
-	"OL8P8L9YGYE5RAOce+BGvKbfHZ74p74r0a/nvjv47A9Rn/DBEz0pXzwNv+SlqH69cB3FH4+vx2dxZ+cf",
-	"Pnf9fZdsRYAK8yIhN4TYSmAKaZT5AXHGBrKwojSJRy2q/CEj1S+hGhTSWJeahg0mJd4Q8CEt0HLU4zmw",
-	"841QkJ9jWv6m4X0z1Kzk3jznLdqH6BwW7j66t+CmQhgmzMWT/tt0xiNsd+/zG7iE/VtUGe3ufdasM3qB",
-	"jOmmCCA3CDDLpYH5XWBZ9W9vErMGczAa2wW4BINJUfQXytWFzl4v6lPhVXZzpUpdrIILWCqaUc1x33yd",
-	"84MKfYymcGVgEq3qDWTRsdDjTXAMsJ2V43W1Lu7pzSTR2tJGB2XPyT/RQWlYeLe4S1FY8SPnGAuISrMN",
-	"Pfi03lA3WWezBJUV8GzGbnkYSqSub/i2C2ctUaoYSSWNJeqyQLRwct7+MqEPY+TeTIR73QQxtGxXhglo",
-	"XMNZb7DK7feOYYUqPwfTHMczFiUTCviUYCzDnQZxAp5lTtFQgintN8Jrjd2S3IhXHoSovyuggt7X6ekv",
-	"05Nomf9Qw3zf2A/sdlDRluWMIfekOtA7KCnWBXJHbcH6QcD0/Y1Cgano5nG/lDzyJjvlFEs22UgWhCU3",
-	"oXD1Z1xEsOjMRMwObkZD7EewwVHEjm98Epf5G9ShV0j3gyqpegjxXCJGFAEdtxvAYpxFyDsEwJMr7eG2",
-	"awhcoNYancuLiZ6YPpRPbwoCHXsUrbGzF8DLp+juRvBCIHChl1v1U1zbko914XPb0teFphx8/tcbeOUF",
-	"W/xb49hAlVTVXB92T7VcbpoYCrRxysD2VRP4D9Au1lNRdrd2wtKJcm5nfe/XB0LiGSYg8B5hbu9VXL9L",
-	"pK40qb+8rKm07XsnAliGFGPrWErUljak10tuCrIw95mMXDSXqu38d1GZCDyq0Yek8nEEM6I+t1yqgOib",
-	"DqQoClE24/WOBFf9DaOJvE9Uk50PvgGGIAT8RbCvnEBS8tVw+DM56eZt+8DGXSNUXqWKxm8b/VcTd/b9",
-	"cYogL+GIe9S92wCYkXkDukxzij1Y5AokNkzq7JpEVGB+RyynqY5t2Iym/iV5MS73XXxRijGnRTizYrxp",
-	"mKNivJBvJtr6PTXmpVCWLGOTMVicOCHosEtdTEYiYYJnQ/cDyNzoaQVeZnUhSoSA/PEfIGIos5zw8xow",
-	"xVy7/dFtxuP4Sq0uXMUbVoBDvd0+UZU37NHMhogmbW6wUednGm3eN/q8EKMGpKUnx+zh/oPP2Ji+YOSV",
-	"ZOZXcJHTH+WWR6+rUntsO8dZoChCyjiS6ptdQRakF3iiEfyEFzJnEkwcbjfqwYBMPwzuAfLtclmu18VT",
-	"hKE+gcKN152qcOTm+XQ3Kjbmdtg4HPeBY8cXVgBC5V9vO3Ft+wT4FKsZLLFzTiIegbLVP+h2FyZ5npjm",
-	"dr58+fIFow8wu0ENS+JBLZ/kfrcxYYqVtim14NlQl5YZgq8KlMTtH6ilsav0YN6l7dXpiVduTr1PdVyZ",
-	"v/MnpTpAXue1EGNRHrhvDtwOSTtbde3KqkA2fOvHGGH8LHHLq22cg+/XPCAvff5uadl5KfjrZqRthG4Q",
-	"ZXP5mS1/wDj7q7PnX7EXVIhJZTWB4up8mrB0B4Fsd8jgo/Af4X5lQMvdo7Sn4Gwen32N3H9KX0j39sAV",
-	"5yPhPnfWnwDNSYzkqoBBGteqma0gTjcUmC6bYQ+Pv2atX7cbmacmyEqM4Xcf2+kYHadVxPt5+A3Lrivh",
-	"qqyZig0bFNzeUC66vklS0eutxI+/aVb/MOEFMihnwt4k1iF2UXnj60JaQhjJCBt/6IiyElUqbFs544ny",
-	"UmYQH+3s5w1BVCTKFWswTpPChjHhzeHBpW9QVpo+aM8npbhBYVC4rgluO1v4XcNCnfqaNgH4joXNpNrI",
-	"DqjG0QOPVUOWS5FjXBdmswhCRotTgHecZytCm7UCU523Z1QKJW54D0dfX9H3iHy7/eiupoNBqcWE2TSI",
-	"GMzADcoIoA7bV6W0IiU6ig/AMyhlV0NZEJXIueXn3OC8cZr+8yn6KnjICdbCSuBwGcCtedC977L1nIL1",
-	"fPsIRL5Zt6KqcSdyYcMbWH5hMr5x5f3v51hFhXxlFrEyPPdysWGtobZ+XKbNCn6x7UQEhBjISX1xoZnV",
-	"PopnIC+cAXhDdbqDx6kWciUu9jw+zSbQNKGh5ZA05G6zYM/Fmes3tXaUpSQqtwFC+4ZKYfLiECq7eZD9",
-	"wHNG9a2CrMp4llUh/nYBC12Hn27ge3XZ+GpmWahD4fuZmtcB0SPWNOPFAu/picL83ZQpZklfF3+xWF1d",
-	"LznXWNy5+vIlYcc078RCcIM6/SZqBuZEdJDlRUy+XPqI2F3uECgd1EWqRo1R15ZJ01MeZBf5BAIOq+Ka",
-	"yGrtU5xUga+HLAVyNxRFnvaUv2kq9srD9SauhoRN1EBaigLTJTOTsSiNyF3MGe+ptZrt+GF4lDmXCRij",
-	"gurENpob3Ex+8FvJlu/52gQFW3xRq9A9PI3rdc++CdXjCs5Qv82OqVT9iVniKEnEGgk1rKfSVwvCtvlF",
-	"34hMq3yBg+qAl7Qh2LkYypD1Q4LgiGEdPnSVG0vRGvUQrol6rfTVAizypWqYCn5vHk9PWnYhLJlCcKSt",
-	"iUIIHJjxBO4tCp0leWqiXJaMcGcnlFGMtxfQLlybBt8lh5wCV9/2tucGtvHKnpSFY+F2a2K6w3VaF/DR",
-	"t534JW4+/mR7+NqHkG4oFlDQIHf0G5ZTWXPArv/7f+jCTKKyFU6gjE7vPYMhhe0Yqhb+jnWN7J9/cAey",
-	"p/hIT5SFJ3k5ZYOSO4dHyuRhKZVfdYkAHwz1J6wkU0riA4iLOWycnqrKwEczAZ4mqfHNgUv2OWtOzmij",
-	"hvwxnkz1lMel8ma20AxI/8ZlaphBoZiTs3iWlSKXFt8n0FlQqSIqsMoxUCDT6OhWGnAMi8boogaINJsA",
-	"MAriR3PWebsoe8vNzNsUadlfiBVNa4cgsIMQCbgeCt5sePAapYKZpcERDBq/MY+z0DtMj2Pm8p//81ay",
-	"9c8/NHrhLIbT9kdyU0WAc8DxUajOuq3Ha7E4QbRf3zrfIBLP1hq2/0bLVgab+TofV/Ar63w9KZoXzorr",
-	"5uVYuE7X3TXbvO7213NSuO5uVV9Xe3T2XDWdojBpYd39vLihuaHPL0lTVHK0GVY4OsR+NfO+VJX7agA5",
-	"brnoiuBLTiZMUj5kuiypKws8C2axycP/ohtye/7d3JKcxoa62bQTlYXXA6y9V5Lu2NVrAzcn7OSksI8v",
-	"xY3yDWVDdEBAHB/aGwgLgnwkJdVwftNXlCTu6cmzM6aEyBEvkWcWUHwxg5tDVOSM2DyW8aI4YDZwAcEW",
-	"6K24CUPrL7kj+Ju+yvgWAOxd8aBCDYnnKZAK1EpwN/YUfYhyHIEfUzVuUC2EmyAQABp1+7Di5nGoKVzM",
-	"OUuJI0xdHRIvSGXvmQ5Lf/f4Jdu53N2has3O9/RHX+bvUnTjMJ5xgMfAt0rHGRhkjhtv11tO07FJPRlv",
-	"ZO/TcqI65AsMni3Oe67Dc/SRoZxNLqdK+B0LUCnqtuh5CJxs9sFYA+FmNdbJxvqLRfkVXs47SC3OsTBv",
-	"LXDRKp6Rnc+5sKaX3gJfppfxhsZvSDRSM247GyZGuR3nnNXAnuRb7ixook+ncH0pONC541BR9BB1FMe+",
-	"SvLhvZTgjWW89mJddM1I57EgTTS8c9oBp+xGPFc3wrQh7eqKlAkRFVp9U8T981f1OoaNWJgLDJQ7NmFT",
-	"SmU/3Y8v0Yfd7me7Dx/uPdj/bL/78OHuKvelDZPM4L7tL/AbM+LNcukYrRACsM+kgtnHBNtw05BMg4S7",
-	"dubee3jz3lk3IFjrcXowepeR1wGoErme3TBzez3OlhEWOZ7rKCnOUp/XGVeuehKbyDNrmY/XLKnw1G0B",
-	"ozgp7BMh8g/g5I+bY1NBhhitO0kdvDx+rTFODbkZpD+6OgurE8S7kd802/CsSLfhUjnLWByB9unKuBo0",
-	"IM8Ui31RFowUG/OlF4/lVGQuCueO91wltC4rEV/mDZo7J8KtWCOPgrGhzs6Ft+cu33LCxiEFUyZmlezw",
-	"aRMm3hrwTa4wJItGJKdmuKZNAgFdj1efY2j4kf96iQb4q1ou9TpK0YoMSTNrFvoWUeYViYtmuhmHd5HB",
-	"JCQlXJuBggqPQmH6feqqeFc9uElU0G1M/vtmv4ly8YBsSgOdgfTwOPaQHBKMPGln8Vo1rsqkEF9LfTPT",
-	"rLtpzZJs1iAeX0ISdacVlyOxoSLBM1bzSjYcw7zrJHQ1XC6723uGXfESjIcJwZ/5V1QBaaibjTxebbYi",
-	"KMyWuoB53CQ3R1BL4SBCuSSa1OblUhvndyknCu5dsqh2bklc3wjOzsERyWaL941U7qsR3wju5qo28vUG",
-	"Rxt3fT5qojBQrGmT+gYXRL1ZuIegTK2/frpUDNv2JyKymblclzxO1BNsHVwQtpLq9/HZ10geb5o/dP3A",
-	"gEqW3rTMBhlH9UJIgfe47jYP7zydRHGdDQ44JE54gKUFJHMOiMmEjQHrms+ifJIH2vqakRpi1FrDOnMl",
-	"VkbsbpaQtCZ3hRUM56URSy7ufrU+4biu4h8nyqtZ7p4rrihIg4Ya3mG8dUhLkrw/oVn3MDet2voTiK1/",
-	"gJwSd5zTd9MQ3uWQ63PJchfM3k1RBG9wPX9Igh3T32WlAvTL+xDXgI84a1Kao3Qw2WvE9EPN7tNQ9zrU",
-	"+hg9wR2rs5hs3zPhpSFo8BHPRU+hvwvGp4LxxX+yHcq3O+wxuJaHNEY81H3PVO4W6MsTUmixNLQFcbyw",
-	"Q9IDpzj0pck6NfNMWuI7MMJO5OSNA1pHB/eAgINTxm1PpdF+TMm4FYo57zIo4YLrsKDIydcD+4ghwFX2",
-	"84kqhDHzYLbSVti19YjdDTZzlGh1DZCPmdtxnnATPEZEuHH0CFiwNgn312nDPn6wGQBEuGqXXKzVgBaS",
-	"pIBM8EH0RBvwHTWNUYP0t4FSfk70cpriNVENKs7u9lA0FhvsdhdxrOukuswXWGMis3+Y/TXqW83wNSUe",
-	"iUa3dDrfM7vi3WZyyctp3/veNWStL6dAq60oIwc96/3eMLk7eO9tuyS/mALgpuno1wq6JTfCW4/lpWqD",
-	"H8/Sowbf3CB4/P3zPCaL0kQpXoTb916F9gHXKcZtOU+X4K6Jeil4m4YepU35sN1NhZI2JS+daSyomOLE",
-	"gzeJkg8mLnIKbYghxefgXmTQy9KHrkvF0lpRXMO0jeFplGImCnxP49VODymlty6ZEtIOSVV3S9tqvk/r",
-	"7av3SXo0x+LdwIaAnJz0eWFNs2sUsWwhK6pzmQEP8JJnr4UFFmnqgXjrDvqGtU6Ov945Pv6ahYgox4A9",
-	"7P70N/9pd7fLfp2Au+yO52yruML2Ie1NDiky0dXfJJ7Ho94wI72xA/3NAxgwso2STMzgYl9hSpIa+7DK",
-	"3IpvlO4pPRagTa3FNWDQQYuSpcAiFsKKtI1Ov4XGprQSSa0lq3WHHWGXsas9tdt1bVGIJQ9l4RteOg4S",
-	"Up9kejTSio2R9mak0n384ojtdbudz7dRoUaH1LSJ4eUYfpwNWQRAA2Ta0QHngZL6uU2b/Jr8uBoUTbra",
-	"G+xKovcEQJojeuVEwTBE7ncBzQDmhwdO2bsiNSqgqx23NuM0k7y4xmLubQgyFkZc60nTGauxazdLQN6U",
-	"z7WydQjlpZS70WNv5JC2AqjqqBGeph7Sc8EvBQYHoUcVIRWhG8GN0aVugjUa+5mtd/ESR91453pk8Vkf",
-	"sgzRaUs96tyiq1o4xL917d6Fa1qUHRK/Qt7gxfMzcpnEds3O9zJ/t1N9adIkAFJ5gKpWte6ZnhQ5xtSc",
-	"C5eVDrH05+GrAG5rKBgFvLlUC96TlDx0D1k644sSoremNwS6WuKeJ3P0zSNtAzrZDoTwXJC8ZaekxqT9",
-	"S8ne2TFcDnfp/ve+4Fqr0mbHYXi/LK+625Aeb92Pbi31nmf8nD/Mbbm71fw9VxghY99zOOkUQwqL7GP/",
-	"sJb1zZOea643+Or41TPEp/BKSXeB3TMz5JiCxSjtW1p7hZ7RtelxuYADOB9yYVKtdsi6mXteXXsVaxTW",
-	"w1PbBKltkRffvC/izMlsWP21Ux/FbNJfotZt2aFsBKjdSNFGrZub2Uk2NSnM5jS+MzTes0yPRQ17YaLM",
-	"QYVagVNzABs8mOIOXMonB2u9psEfGzqdKOMRLegBNXBK9eMjtIaZU98GPjuihqC/dZK5sbeJ5xfGBcdM",
-	"5ETwyBTiqm4AwkHp7OboCxUAVQO4FAnpzaj3CyLjmr11QlVLAZ1mDw1KrXcxMrk8TGF+JrgxizD8V8yS",
-	"00l4uKlNYzSRCkSz57y/XYdm6t9scklFsMSp3l2HNTgEVwpfOLH8kHXrXhXzs6C03SybQbLldCUbds+V",
-	"2rB7q5ZwIV8Z+MlmqIeA7uCZSGSNvl0NfhaWe86J309LtX5+dsNxSSqa0EhVqzS5jWLLv/6tn1nKL9w6",
-	"3Wu7KHf29Pkj9tsqmTHyOE+f/4H9tko3DFDJEJvZN3lKQX9njypH3woQTekRhvEjrFQL4Ykt+GX2FCpM",
-	"c29MdeBSEKFHIFV9tBtS9Wbnp7/7L1c+ZhErh7ox7o6+noeuSnynagl5mByBvGwcSlVLQEhrr0KdCbl9",
-	"PcYElRQ5hQ7S62rMUYGkp6pZqLqpB8hPuh4cumzEJPB67eQBq+YygjYpJwrhAtKRBH7OhZ8ajLQb6VK4",
-	"4NgqHFUUMK9z81dHKYH2Ye+4BjErSO17unP9QNe9WsNuO6L6qwdfQEtnee3ZU2ySku3X35y6ps8opOtM",
-	"XihuJ6XYHCndCmXBQcHfmotzQ5Z4kd/DvI5olXelmbGgqhyiUM8xIdCCbIu+OTPkew8+nW/t7Muj7b0H",
-	"n7LWUFxXsINcaYVYgoiBpAdRZ9AfVV6oxtiOuuf7gltvHRFycV6aEVdyIIxdoMB7UUplnW4jQXhENBO9",
-	"enlMJn8No7ISXnKPNjGcjLhCRBNKzA4xB2aor7xupFGd4K6GCpXLs33o6+2AdlDSkeeykLY5aeKYurs4",
-	"ec9SnQKsR1/my97S84b3tIaNAvCrl8fri7Shnj7O7QLnSD6i2HqurDfZFfz8niGv8j+jhQFAfe/fv/+w",
-	"MmTA83uYutqIgA3oYrqRTmklqAapKGicrIRKWzK+w/NXL48PHJwPFKntH8Yr/BGem/ZsanLINPX9/rtt",
-	"+mOv+uOl/+Ng7o/Wv3/7x99sfzv3vN2Ymwp634dxNi4SzERe8iteLFMu+a/URgrkqtT5dDUbLfOt+p6K",
-	"918S8urU9nN1UOLtNr9l4lmYo1jJHMWcpQELeAyizjfID2V82Q2Eb19kpetFVPnSfr9/6Mv6ITobp4pa",
-	"i/41krs1c0wlywhhPQvWyrC7sDV921X/G1cg0lrfVt6d1bAC84iiwIF8QJegSqFHLc9r5JZb6uvecR/A",
-	"M2huUldE+kQf/0/iupIEy5O2Q1FeSUPeLGFrfdA0Ebe1wZ45z9eNfbE3iXqiq21x3NPy054vekFpVzbD",
-	"EbuJbVhcjzmm5pmoTJSWS2WnazZHbr9mo+a81mod71m/fL+HMkvpXKGbUazGVTKRTdJy1RKQNKh7vCv0",
-	"RiMPhUBTsMjwh6hRs0tR34aTFtrA2zv4T6V3gCKkWxIBjCga/5pmcjNBU3yzs0RIh7LmBrl9FDgXF+8U",
-	"i3OWJY8O1ziTtE2iIdZ2cH2zrG/qadqrNV7HQdaGKANCvc1e942uLFocU1ITTBnu8jXBrV2dp76VrSQ8",
-	"O4NGot9Pqd6GPt+A762FTGzkEu8bXcllVE2sM+83jLqpaPN6t3p81c1d66f+HnbhDv7Eg3ed/7uKxrAu",
-	"AsJHUdwznfhK2IS7mbsrbsmNc9Hd0OAUVBGfe4b5ciwqx145RLaZ7t4A+fZnu3duYY/gZFWn3SXCRLS2",
-	"Kk7HsNYcRWCAed/uRLfdbIbfu7r9YsfCu7oL19/t8QW1cgZqF9aqXVtL9sUT1EEJngPL9wpv1Nc32Kv+",
-	"ClzT7Q6+viPCEu7cpfNADnaHVaITlw9ntpVbcxZfesFHJ73pEnjpYE1nkCFKIZgV1zbKynXogIltqQuW",
-	"DXnJMytKoFSZGFtm+XnCCqmcsxtHHMiylPxCsFLYSalmcs8HF9sFyee/6/Wuu91t+O/n8J8v4D/H8J/H",
-	"8HD3Sa93/dmTBdnzX4JwccMo5htIADcBCFhgjos+iMQkcI3XE5Uzq0NkO24rxVxm0ApKZ32b60I1uMn0",
-	"eBN9HHze1AD2qXmcRmSlsB12NtRXiqERTqtMHDJpWcaV8/ssBXc+zmt6UlGLicc6dgNZmd0e98sNGSDw",
-	"X++jlazUxQLyUEu6Ttd7ITMY6lDLTCCGvjGImE4LDm7vYDbEAJPKD4bOVez6wlpe7bC/txewWKVtd9hJ",
-	"yMGA/rhUDObXwWbwUjjLlq/ifEr2Vz0pt8VUGEpJNh96aoQ1jAZuRDHoUyuLPPM32vHSgUJhGhjoKI7e",
-	"bfacUWxCqyrDziXmPGt3WKDx+LGrBhmmaAJR4SApbxGuCtwA0Qli0oTp2O/edw2jSifq6T2DmiHs0n53",
-	"f/FX5UQxXdLcd9hTwS9FdSfMHF7Wwg4lbtESn9C33XnfsN77e5sm8q+Iwy1wbN8MNUwCAglj0MfEiIq4",
-	"HaL1T3mXaXJnd9o6PsmlZbbkssAbWF+ppux33wz1qKqQQbIwdQEb6YClZHFyaepQO+3z1IEzebVY84ns",
-	"Oj31iCzzBy7bsP+2psPye4F2XVrttbSnqD+8QIubKNywqUsOl8rvOjMh7/Cemrsnk9uj0NWe2N90SzSj",
-	"ybuONBLVUqjbVOyfcyMKlx5nKU4YtPuF//iGuEl1YIh5dRk6yKwJefWUPo4doxrSo1rNIGslJtCVROpy",
-	"8m0CmghjgixskccR8xOSeNpeQXGTgmszdiBkbFxrgl+Er31eyvW3I1UAZZr6YcuJyjznNnNflBNR6eiv",
-	"pMr1FcMguRGl6+GK7SbdbtfPCBBoEPvwe13kwlj3AWJMwBw3X1uXHuptE+yNGCFuZVR4DY0gqOGqRQiz",
-	"Gu38sPFqHYynLHIPW+ZBXD8j74Fm917IdCOY7JsFFixw3jMNm+bMRXZ6w00uLiXOHGsp9tPf/T3bXZS3",
-	"MJywG0aaGVGIBYHxPoW9byEcYYHhm9qINVhenD8cNExIDIkXt71w/V/EB945oUFjhUaPg0WBa2GLMu7o",
-	"EgVxmhiFzVeC+f9BQpxxJ0u2yr55M+GUca3Q6zqY1Tt+5lqpPz2J2qy/ibzK5l6dhd7UXzzV5IIWEa0P",
-	"AEy0KbC9AIrfTDRrLm6Twm+yUIIQhKUHrW8NAi6kz6UWU9ORpIho/Ni0FzH9/fi2nv/gZmhUi/UvYU96",
-	"7P3mYFLKuqQE3KQu09tA2gSOetioNw0r3RQra/aOaU4IbTx8afjW44RGa7a2gDCDwbk8pjmKP6qFG3kT",
-	"UUhnWeF6VbuwvgdqY22iR7iN48Mxmch83j2Mbw+Otp98+/3n77bjn/ub/Nzde9eoM3rVGC12xDBeDH13",
-	"M52HTOOji52nEAY2cf/+cTwefZvO6Lic3LVAw/X/2v5/f/v9bnJ/QX++5qXkKhOQbrXYNO8vJoTd3THf",
-	"7aWJS8VCtbHBRGWxP33wmDh7dMBAacjSsb4SZZr0lGldtyFuuPvjDyN+3bpO2HV/JFX7u2yXBGv8idWY",
-	"ES+KmgM2xez2VM3x4NA1AbuCl+CVzFqOuICKAlT2O7udbqfbjptnv2HZ7o8/XDeCDaybZinbXfPDBWEh",
-	"M8fD4/JDTqZst3FTf11RhJkkKwhATMSJq2kE80U4E440OQeThfHQ8X075gaO4qAeDrLsJnW9e0EF3a8n",
-	"WJ76HsIsPsR9txhf4Cb+XO8b4r9WKpnF8UZVmtXmtPO/foQhFN0ff2gNUP8DXKiLkGjvuD9ueA1hhU0w",
-	"fI257Zddk6zU2kYg0EQnbtit9ed1HTtjvDvX8G0Bmal5JeCaffvrR29Jm1mpQH0en5ByioTuNV1AlsWP",
-	"rY4QWzmXtxZoXmFwz3GMLokWTl0FoIN5JY3DqFhLIR9xEY5irnZI85t4Ptytfq7ilY1i5NzBjKDC6/zL",
-	"mn4p8R77cIC4TucbUiQ1Co4juDTclz4sfiZ+/lxgxhi4VcmrrsGAGMnNlzPkft3DN7fotYrmh7NCLTF3",
-	"ruevTqmklRBhDzhQhAiSaWWlmkh1kbLWMTyN/QPiHsU3pquIdqIrv/7VGao8CdXUNkxU5cy4buArdJON",
-	"FA97fU1NfW1XSAj1JjZY2lsB+F0AIxHUPFccyDc3k80g7ZcjFn3lwhhrnyWMLAasG9yMK0wJkBxuimi4",
-	"IINldwnTeuNb84O6J69zB3gPxWjVm/bVNxhQecxVLnOf7W2DPQXYuWIBog+OQ/hQzWyotVmEP0Yau6XV",
-	"uMhWNjFigc55xK9d9CVFiUJQTrlA4VHw8kIYy/CTyh5leeFCTDFaC2tjhKE2UTkqgaRhmZ+tmP1zqGFK",
-	"20i8uIlmVlvRnFOdVw1jU+a1HI9JzqHLG1OqHzIxGttp7EbfZACbjPr83PSb5udf/uvbX58+futnBfjc",
-	"7YwX2aRAdZenEGaO+W3q3Q1nIUQarzok34QPZw9JVUVtuAv3SdiFSdjWbjUWn5vGkPunghu7TdpZ47YT",
-	"pEDd3bn+rtt5kLKf/uZ/g1/T7/ZS97oWbAFMNO8pVCMQAzILrYO6Rad3aB0VIyFzzoRlvOgk7K86PXU8",
-	"LPWIW31RdtgX7LPP9llrr9vda7O93Qftjldt+L5Bg7s7oC748R/JnZv31LzGI1JnXIMKg7Y541mpjaGz",
-	"gsltC33Rwl89dfaoHTD24HFtGO3E5WGD8VJ5iJ+8Uuzs0aELguQ9VW0rPfDEBG1SuPEoKDZoTdyJ5bG/",
-	"BQCZp2E39DWuk+nMhoO72Tcd34ijWBQfH21uH/AZdDZmMoK+8XN0qBbMO38zUZa69OjtPbXwJDE+0miq",
-	"1AajQwk0SekaARrpUkBwPFdsyItBE9HqsMc4HSSG+kS/vCiqs2mYVGE6+tVjQJMrjJ6L4BnIa4wsMVXw",
-	"P4AW4Obs60F/JLhKWQsWgJRSbAQKN0Peogfsa162prBt/vVvf/zHH394+3/98Pa71t6//FM7Yf/yTzQt",
-	"aOuA4RSK9g2DbaMVKxR8jlTNERhiS2FOYRV6qlq/hEkrSpxWeMU485ADrBRwb0TYeH5i/uWfCEFvqK88",
-	"+RbGyhHWIhVLlVY0qLTdYU90yeaH6Y5ST/mzhCe56ilsbmlpW/stfvaojiWgKJbU0Qf6y/3ew3+n4fnU",
-	"/abnBv91UAS1JVmTEw9U7CvqQvh9oi7P3pT2r2eezf3eayj072aezf2eK1R74JAPwu8XMK7ng2c4qpjy",
-	"Ph8H5nwj5CBPFaodzRxNSBw58eL6QBZFEwQoyc0G0BbWCLb1+CHvkq06zWmywc6aKOsFklrTS+8lNzs3",
-	"QSJeNkXg74WZwisH3crd183bnU7YjKutQNgST7ubrwNKu46Jht3FZzU7F4sulxZX3gmOqJ8vpbR1JQHC",
-	"7ULkoGXHj6kXdSARlkajPmBUN80VslXwMRIDytLRYc5bit0/YBzuQBdZdaWrKoeYtFqwXFyUAvoMZYXI",
-	"IckHLMDDB+zXrETQTDPmysAQyCMM7ydYrc+67eAkVclJkXi0lzRtyvmNFqL9byaObhbEfTex2EtLro7M",
-	"djXPH0P0XcgmpbTTMxgJjfhc8FKURxM7nN/HKTzWpfwzckYH7Av8lgTjDH3cvFcdQ2c0c1BzlUtY6lRF",
-	"CPAGxqe05ucKX6B7ZHrIjBB0S1FGHanBBy+93vaj3SanNAd4g0uBkhZ2qRImhtaOt969Q3P1QM8PCdsH",
-	"lyxREpayiV0AofN45/NzXTrjTaR1CqxRAmym6Sleez2X2yoh0w8ldHEMZ8wBMp5lYmy5ygRw1oXMppRU",
-	"xgiYJS9dJsRsY1UJGxfamsShAccovQZP3kS9VvoKbo0/HPnsr1AlVzXHy57qqU8+IcaMFsmD53JLXG7n",
-	"k0/YUegfAwlTj8YTGwFUEw+q1UBeTEqRswyWvZTcA2zyMuAgGQbHUhH1GE/OC2mGImcXE5lzdBHHuqp5",
-	"p8mBsVmnjiHk0AvgUp3fMDxxDOHZ8xdIxXpqXIpM5ALr9NpUJUTu5wLZ+jcu2XHu3TZd8h6nbiUs+56i",
-	"BXVZftwsVzJOKcaCe/9mYMy8qizF2f3Vr9ixVpdC4bOe2iYkILqmXAh6KZhR/LXoZ9jqS+mfBiCXVkpy",
-	"6gELGq4UCDxjvLjCBSultQGmhdhMcc0zW0yZkdchQwcvWC4vcNcy1kr3unufbnfvb3f3XnY/P+h2D7rd",
-	"Dumk/n3aPmAvtLEXpTj7w1N/SkYSJCoEjjEJMxqqoXsNP8gdiIypUGMGIIc7/+7coMQeesbxEpCFFWUH",
-	"pqZSRuH581UO8X5pwbH0/pAJOdcCtH0pGNiXGNFG02GnmrziYa+Px0Ll2yiSeeBFcBChLQGnjLLJ45lh",
-	"Idk21UoSPxmO3HVjWCrzdAcw8lPyN4ciObf8nPTzemwwRRRje989uM+22S7MkpuirJBC2YT9Fb/kZ0iN",
-	"mFSEkJa46bFDMfLTg1MCSZdgmyBBkbngB+A1QokrOCPHd2lYijdpGpIgOIipCiseugTfVRYS/7HRcHqA",
-	"jYrVqq7SKs+Vr1q5JYeMGzz4swe6ggmi8LfTisKh5TirVKrNhrgqVZe4TXGoX+F8084fSAUjO3n8+PH2",
-	"Zw/2GWlnTIdOj4siyXhZTtlX/CuEFFZYZnqIp8I5POES5VqQ7ktcS4O9JlM8vqzZ3j1pS4D9YnXtEqU1",
-	"8E64pda2jb0HdVHqtQWcGdjBShQ4Isd9MLp7ffQBc8SZiIBhrbSJNTlgyJqkwBExdhrAL1xVMEkupwIH",
-	"VrgocKOh1E1yP8xfRkg/6ImArfldjldLCb3Njd/I0rBcZ3QFhjmje/NcHLrda5gZ6glVRBEm8kLpUvjB",
-	"2KGYslxjWRhl4tJuFNyKkjnoesN4nrsStPRICPUguoVN4u9Pkzj6bhKvycHb0afJKAXupIp2HLBdZjX7",
-	"dJ8dnR2fnLBCWCtKkzjSh6XTDrAdffjPAfxnO01oSLxEkcIJ6lQU9heWZS3i/lhakSqQv18pibDTULML",
-	"pIPaolg6Xgb8en8vgLXI9NQRK6SxbjdyxS5KfRV2GsWQtNLfPY7x9qHD/om73dI2ZpXDdUUFwZhfwMyB",
-	"gkUqRpm0pgcw2SXtygMnBKSsBd8yI/8sDon5wg6hsbEmO7mUOciat/GYwURmk9Lo0uEdjoEg6InB5oF1",
-	"U+La9t0ntfg24mpKg8QSvm4nkfoKoy7wYjA+egQ/xi8PaRR0IlwAhxUjk9SbqxbrK3Ftj+lhmzo95KY/",
-	"0iUEcrDquy+5eQYP2x32eyHGfqbCfnBj/W2tlauhLHAHVpUydOufCMjtgnOJpbli6OmfRgvZpiOIxaNa",
-	"D1B9DbpEnH+Xr+ZCHHpS2kpra+/YANzB7kijQsnARGs21kVBPBe0gSfuyL+WhukxfwPeoZX3b/qCXwg/",
-	"Y4e4e+zQbS+ZCZZLpJlEwc1EYOob/IukUwqXcguIKW/2u13c97jpaVsHlwxZ+lyJLe5QklHCnckiBLvZ",
-	"e2/MZg5C3rZibJOIwTZtoOuYK74QSThZeD6wS3+YwOUcBg+VVeJHTAmzgpciPsm0rvvdLlzRmM+IYtjS",
-	"N1DlfNhR0CoTzQyUAAQsoawbDVE3lHN6inhzWO2UlXpihdMYbCCUHblAJAzaFSik95QHGKV2DqAjb+kH",
-	"e4tL+JaYC8PeOtbkbU+93d7erv0fCsWyHntbi/l7y4hnI+LvCHZSx/mtFM0++1MbaiG87Ir0M9dWLEmy",
-	"t+zpybMzYs5KtxPe1mShltLE2xAX1A5d8mykk6OivWOSuIbEdbvagzYkBMGjmETOVcDu6jIT0YU1nxY1",
-	"ceAzUiGIsGfVaHx1wZi9BfHNWD4Y4DLAQ6gzQN8lFZc1M68mgYor3sWsM3LWGgsX0egEUF5mQ9AlrZ6F",
-	"m46YJH/2th5IC91FphlXDzo7MSuaQHmAxDSMaq/VAI31FOYmK3Uh3Jb2Yi7PLByLA+YZWlFW/DhMW8AM",
-	"cnu4p6Rlf5rkFwKVjrgLawWSmqtZNMehJjcJ0vYUTLK8xKpUTQ8RavSHwEX4osKww17QOFskvQLIcc4t",
-	"pxvOT4eLhAJK66capKGKKvgo1fjg9pSDnQ4BVrIkrUgVpMxay6Jj250w3xUpLZD24zQi1SGeB3pFygYy",
-	"7ohrKxTs6J5qUPwczMVRf/IJcLdaiU8+cXanEVrn8hGZuv24kT+CLog8BGmTpa4kmmxdpiUTOGn42qs8",
-	"CmEF5vDtqedjoY5enDCvR/MYcz5+lDt6XY0cBIVKxXbA/vgtpDby9dzvdMlJ0TgKTBOFcw8T/BwK7eHc",
-	"Q5GTR6BSUCKzzv8AZ/vIh28kbMQLUBfAqfSiBlplLzUkjgux0Pvd3UOSlGQehVTrCWxJP1PUIfz6foel",
-	"O0PBCzv8M3CgO7CxpvTnSNhSZsblStnRY6H4WHamfFSkPYWaF6V9LHTqJw4nou1vwcdokfRXHtoncSEV",
-	"6kEe7j/4jI1LfV6IEYhMY1K8S6123NPf/Mlg/hbi5noqfUHPvYFMKhqqBLNDwlJswaROC0Nax8FAYMw5",
-	"CSfILnOSOc917mQoOEvQo08fdnfpHYYO4Qlw0LrwMYUTIGcXklubnb2deroZ1kp7W72t1KPqIpeC5duH",
-	"1Prx2dcsE0WBR3inkEqYHcdZ4D/C/cogc6W/9YEVTrHC3e1zbkTOxsOpQSRqqAGZdejaUPBc4DTj4922",
-	"D4JwDX224/ns1HWnYhKhP9S0D7ye53h8dcQQkbyRsHTM7fBA5iRzpdSJg5NcjMbaCpVNt38vpihRkEeL",
-	"E89H0lDqTjKAxFOPFZG6URrvZVKSOGcc877jttozfzyYmSrLrxN2VaKJezp2gVBOHogCc3gpgM87pM3j",
-	"oQbAsloU2662c5DXSsFfG8YJXsGnRndcc4urkDY7MmN7DrOn4MwlBB5Ax5a+AL63FMhwymqO2GsxRRXE",
-	"/t4ekPMH3S4pb4Fu9FQv5A+jo9TbCldP6uSavszTQ2e9nhjBLqAjVscKgkLDFv7KMVHSa5MqNRNWFCEr",
-	"EN33CmXSWXjGM/3rbacR2T6B6BDO4unTSqD2JPhpo74BqfZrjN3y6lT0Ny30RQ9dMUue+fxRqEHY7ex2",
-	"uqyFCyHVBWHbYFUsF2OBYodWjkJPhW3jIZ8Tp0msRME4EotQl5FSBOlVEH0RAV2rShcKxXKkoB02K7oz",
-	"rswVahKDuIgC2S1IISjLogIGowCdkNHG6mlJvHZ2Y3UxmPCQXvAco+xQ4KPEuUoqQW0E5eL5tJojUkx6",
-	"7W3gH2d41SWsXdtr9KIS90htyFp+A5KCmfZbO2q70l86hRylo83pnKMo7XN00CGPJFOvwWUtVIXk5JDB",
-	"mFDI5IeAAq/+dZMAFqdOITMBRBO6cjQGXmp7r9MNyQNLga2ShePpyfHjr84euw6iknxKXGoLCZ/byQck",
-	"sGW8KLxCyfM4kF7id49fQudwD08UpWRM6QszKzd5vU0kahwGHtPp0zzX6LT7wAYcBlZ4hTTgZ2p+MalD",
-	"843zRbwyVDMnObhKaoPqNB3jne/pjz5MxgGSGNdNjsw0dhA3CxUPeS0jZnjn++pHLcnlzjloV9MDZmCO",
-	"eBH0ldBnp3Nz+zMh9sJbzNCQV5MYsXmibNuVrtw4FbeNc1DWdnXCUp/7zV2mM8nrkihzXTKfKzPxGVdh",
-	"rhNihpnjDUKADHkk4alP6ZfI09nNqcQVGwnU4DsjvjsDYH0lxJmt6iRsJVuTsnCWWnOws3N1ddXh+Lqj",
-	"y4sdV9bsuMOBZRDl3xaibsClKFUCa99C6u+TDvGx3DrYut/pdu5TvOkQbd2eh4W/L0RTYKij0HuAJQHa",
-	"PSe/6kwYgyxpIQHz5yvUxHi+tkM5fYhgn+RbB1u/E/ZL19SMa/VetxulMIE/Y372T84ngNiQVX4I1ARZ",
-	"u2fGgd2E2XjQ7S6qJvSLcoEqXiAfXnMU2Dr447foqDri5RS8SMG4JzC40GLi2D9WIzdb30JRLxEsnOQX",
-	"JdqdxMQQHJ249oSYka1zdn4P6RMB5xZFI63ATKOEvdLla1wi6oQuUftqHODO3Jo8cz1buSbQr51xweXM",
-	"asw6Y8xNvGvhLqY+mrZRGMfCRYjlsIUrAT7nXhQNBqCIBwSz4PlEAm1HX6A1tr2rbrNt7zu5wUTHXQcp",
-	"2nc/Yf/u6NnTu5j/l7GZbNnUk3C8Jo0RqsZJBB7R+zc4gUSG/EUJe9C931OVI/3sqrB0pHPiP1LoCtrA",
-	"04ichbYkerDgtYGG7pB8/8ApoHjptkLufRA9YB11EnvSSk+FLafbmPc7bbOJsrKoonagZgMkdKTRvkqi",
-	"WiQc9ZTSVmbCOKdUUQw6eNvA9jBppDuCTjH/ImFyANbNxDndkqqq4BcLzv4prcodkuNT9IcTxjTtV2ye",
-	"WU3zeeP9CaXury51RlP7SvFLLimmYdnWrnq+ZFtf7u4gh7ZwY3/yCTqBHXzyyZw2G5wcSReHstwR1MNK",
-	"DSptRV6KaONLGLdspI2tDJTgBgixAaTpTBkh4ID8jRpE77+Ty/wAK3SJtTy77V6jkOCcQ2gjk6FERd+A",
-	"0xRuvJCgx7HL7onMfeuOv4OnPdUiNYfLde6PrczbsTsPiFr13EsajGRKlE279QyV7zhJMXiUQcA+uJK2",
-	"UKniETEPtmgEW8maG9X5L75LmmurpyiqqowcFT/db3BMXFqbzBfVtdftrl0Z7orZihr9RRuyjAOG4Z0d",
-	"flytp3rhXVUilNK7ZGt/nVP/Bc+9/yoW2V1d5JXizi4ociq0Bp14ostzmecCvVn39x6uLvFS62dcTV3v",
-	"zM9ExwLloqMyCysJN0l08kGoxl0YkTeyFIGX7JylIeDkzGci9oSQXq9FCesesKsoIyUnniGKmN5GOEtO",
-	"JAKii47TWjsNn2Ln054CV7XoZYc9cQ4VmR6dS+WihY6+enTIUuDskFmQysWyEtWzOnVpPOFZQqC1WtV7",
-	"0GHgLmAcVlhlOcmC4yNrGSFAJ0k+L1ve1hNNGClLI+aqfYChg6zBraSn6o4e3FRuKI0+JIcEhCUqT4qe",
-	"qrtrEDIWjrlWNfhhdCpvCfS7wyaQ9eop10Dl4jBHx2HItKDrkfEaeuB6ZCcO4l1ENCscwturM6SNv70q",
-	"A/LUelXWYMQW1VmBWK1XacDxggrrZ/oxLwspjK0fgKQ6NojX1dAHOGC1DqwTsz7fPmRsn29dXK9o3epb",
-	"aPuF9xJb1Mr8vRyQBx90o6COvZV3dNK8QNXp2akclLbu9EbHDQZHuOlKB+dcNBEEDO6Pl/utX+7HhFsk",
-	"DajLo7vb3b6L7u74xvVgNauuclSa38F9jlABZDgbSAvw7ahUCZEUWmUi8n4U6kI6t++cQmLpSd/pOVMK",
-	"D5HGeZOVwte0QOrFKZy/fVYcMSx18ugDnK9F7DJhq//Cj1R3f3WJr7R9grhHf6Fn8IiWgraotIbikVxY",
-	"E6aD9tjFd306b6x9mA1Dmz2j3mbt8hVShAOFJVYOfl6wRw8vhzmN7LnzDIqlD2ni8JNlJ3OBjP9LOJ6r",
-	"BFqcJvPxiP4Cjmi09dAHLXNE359Id7jWlXVnTuiSE1m5oMIwxtq8l1aQ8NgM42hRxG8TgkkI+AmR74xH",
-	"7ws4FrqUFwjj5P287dDfpD5SGZMZkScck+hukvpq+noAfk4Ws8m6isI169HY0ABu+RTD/Rxf0mGnrvaZ",
-	"buDk5ASoMQ2/QKJECHgfAuiiwVvCUSGsq6cQYQWR0LQSQR1uBahEya8LYalQGnDGM1QTtB09CtPjHKHS",
-	"MekC+sHwTg06e77HjUUXfCcw9tSFsIbxYDgPNuwkOBT50Vau+qjvhCVABH9uespMxqI0AgePqjDfNbDi",
-	"mtlqai7ibo4PwE7h8FNr7ykOCVvThffB9f1wghLjA/TQsz1FpgmO2gVED1AiwJyz5z6jgDO0OMJPJ2rI",
-	"pcIYnXPXf4jE2O8+THoK/b1SB4lo+q608zg7RbTn1v7ennMEOKdkN57Dq3wRwwUL9R2GsNmeou6fHH/J",
-	"nu12ATFnb6+d+PT/VbQsRMA6IEe4lpxzEzqT9d2uSg+oD7TjMCaO7nB8GrYYBoYo4UF+XGGDXoCp28em",
-	"H4IH+0pcgXOuZYXgxivHsYyLvXPngBfweEr1ANyRf9P3TkfpQTAA7AFmgB5UdiReVucYfXF8tXAKCjhA",
-	"9UH4LmR6oqxhDqLAV9V2vZAujaDpg6dZPIxanHb0YUrTR2G0bpXAcyrxS9TGfc247wG1BOqzPmIg9IXK",
-	"TV8JkfcpVD89cIOB7tbIAEwAFPR+GYBm6lyeoHtDeTGE37Seipdo4oA32BCMBUtDg4fouQiVuCgS6ovr",
-	"QcI4M5Th0GFNeo/mq+GU4rsuhBIlx+C21JWqfNNwkttNnA4R9cf+onhPXgcv3C90Pr01Nif0LDAndYgF",
-	"lzhphs3a/TBSUIxQS66y2P5TnS1AMnzB7dCfGl84YenMvY2I5vUhJsts7/+DsXjdNVi8Y60GhUP0399d",
-	"o08v+LTQPH+p9VNeXggq92CdCYDMnehY9Uzkkr+cUk6n/b29dQo71yTgCh8rC6bdv1Am9jGR8xh9TDmQ",
-	"rIRxzxT6PR0xt2+y9zPiECc7LrTtjNXFWuLlDVRAGMdfaPQ+TLExc3mRupG9+Op3TI74hVgmKr4otH3x",
-	"1e/uUljEPuy4WWjQGZ9LxUkRt453Do7yo3j4s58s2DiRXJgw2kV3rq7xu/wOjtRZFTka2MCARjXi5WsM",
-	"XHToOSHVTeIxKwcS8WEA+hBcXzGCmPk8RmzMlSgw3eAVySt4LEIoAyenRXRH7SmK/vX1B9ifKJQPandm",
-	"qFXH++zrD3C8zeXFb65v5G738UD/Qg/02dcf5kBXDvDrqXuWal1P5vCrYEwUWAK+PBXKRwSc5QaMoh65",
-	"/fFKOqS4QTrN1Sln3vGdccvS6nlaSW8oXXlZr91hc0FPHfaiGjsBsMxCYXE19XhRGCI2dAhHNsFYYxdn",
-	"ChWCxRomwxGFw1oijp5y4BsguBFp8m76hk998BVB3BQY0j+xRuaihkQq8p4iCVCXRMgYJz19h8X6fAK0",
-	"QRjSCmDMtYMBZj213324WKqLJuUXJ9dVfdtIsOveSQeoiUV2ZKdeGweghIR8cR2CUJmLsrP1UQb7KIPd",
-	"ub09jk9GX1kPJhg7zkWHfs07ZsmdUkOquA0jwilIjCYy3BFcadBtO2N84BZRt1VZ6MHDrLJqUPjpYtOD",
-	"g2d2TCZh8TvlHOiFlUKNHlrwiZbDuvBSeERYCioP+hrYggeAM0eIMAXEdTm8pCpJjnHuAk6zB3VX4Fqt",
-	"k7PnOyePj9nuZ929Bz3143/7rLO729kjqwDLSzmwROddSKzx7nFO0+6BECP0C4zDJe43r2azmjLWcoAB",
-	"BIGI30Hg/Rl8gerBIcFzz90ip2HxxS/YT+G0tkUX+SvgwkoDurqPHPLPTciijeW5ZNq5xIERBeBXgQrc",
-	"sl9wIG26zDvjfHAHPgsvA2AENRPJA06n9OiJA99BaUHNAKkdeIbXqdm8qrgSXJMQU5dESjmMOkei4AXv",
-	"hDDnsZ4KlzuQzArL/x4zmSbkojcTwnTtKQePiRQJyxjLrTRWZglxrFgv5fxyT0gzCJF/aChFRncRslQS",
-	"pAisPJgGVcis5RluH+AUEJZYS/GRSFzgPEXLe8NLwc/vGfZnrUQC88iBzjuFQw2KzOiBvcJwbZXP0mr6",
-	"3FGonjr78mgbcKOd/AJKjJBKkqSRYIRGe2DNUI3Qm8u0C6e4SV48evKhSKzb9e+tRHSH6CNN/dlp6ssa",
-	"kFcMe/2+sRWbcItY5BbYxGcaU1/Hd8OshwSzmgHYUKkvhSPAPnV2SiSQBm5cPEPmSCgZRwNdRUgxqWaJ",
-	"Q4cdYdVIw3w/XFZoUgxgACfllCWTLa8Mr+BQEER4DSgc7KimfqBM94VWF6KcHxmGLDysQM/gwQDTkwID",
-	"bSelijloAkxQ+oroqmlm5aCe2+Dibl8VQH37mdQAC+271CuRfxTtP4r2H8BHkOgYC/n/399NcAmdrmAq",
-	"78xdN+LTrlzOD8W0EoZZrduVN9WIKzkQxjqwVLzBBOHvJz2FcbnA4NU5O3yE7B1z3N0hMZ1DgXiHMcJj",
-	"4ODIF80n+XL8HFHjK+7jkpeGiZ1V0/aLlIRD/xZFxaCpOwziI9f2C4iPDavR7Bp8O6xa8t782JFiGFpf",
-	"aiWzag8dxEH8kFjCMMx4g6fR57whGwwmX5iR4Tos9e15Xq3Ceb1nqg8PPafHAbQSU87Rb2EqkhnzRC1u",
-	"GEFGUXVOwQYVipIFZ9QgHYJ/LOJ6+dah2jd827VSOmBDepvMv1E95TtIKK+jibE+eUE0R8RBEtomrInI",
-	"gyrPxbCSj3PQcTrfVEIl2Ha1hDEdOYBEP9UJGJJ09hrze/ZULvFqzBnP0APQoYUeutQooB/kssDdB6WI",
-	"B6ZPG3EP5IX6ZbKQ4Rj9TF6Cof2VVPcjO/mRnfww18r73yZLOMi5ROe37EFETGTcShUA1uBwgMgLNl3E",
-	"vX09kzP9F8i7zSWrX0BIahP/kYP7+Y/a180pExq5uSW+sGu6/azDydUz/C0+Z+wkSggB1dZTd0SDcTIT",
-	"omoSFjEwJnFD7cOQD6GnRnwazB5KVImrzqdsyDHPSr1TLhQnYOr7hiklWTBpOs4OODbMuxkWCZI86Z7y",
-	"cJvtuilXWp8ipgbvfRDQ1Hpqt9v98YcB7MIdpUeosocqfv2I4ZsWvmI//d3fM/e67b/DiHHgvsCEMRSQ",
-	"q+PXj96yn/7j/zIToFJlEuzEk9y3uhAlPO6PMwCMQAaxp7zr04//sNdlv/ZBUOzVGXv84oidfbP9+f6n",
-	"7BnWzj7vdruPYo1vfR0P52ORqFuYIrmUOc5R4iNoe6qW1w8f+9glH1F7VCFI49QqzUodzFhe0Qm8JeVx",
-	"OWoMDquHhXl5vQ5gG6LEeopb2LxkXQFiz2ajxWqV69K5pEcaZMSkvAJm+3AmyMwZm4xLpj0XmkZ3Tocd",
-	"qcj9oClQrkaevecAdUFaKiBMTxEWNPHkID9QHBeNGPQjJK3ElSU9BR9xj8yG6+KDkbDzzgCF7m8wJlty",
-	"ZShuy3texJjUD11mHCd/FA5ix+O/k/KZ1Ok0AEASxD/6Stu+fweZc7x6vAokhKMeJ5oLU1VVEofiVVXM",
-	"uL25bwEPaCAhZg8g1Q8w0Xy82JFThN9GUeAltFk7c7iq/ejAYKIETjGBC3zpYjL/ixN/4s79TBJQ3AWa",
-	"sXwdFibE7euJBQrzUTz6KB59EP8T1Es1eyVU6a7WZN0CG7TaX3shejmV23Ek8Y7CnCIDJJ50irTHLH31",
-	"gAifC4Nbumq9K3ZPKX3VPmB8pN3NQY1GN6Ylp2YkyFiWmitD3HZPIT75GpcFMXLwsb9tyCmD0Pd6yltS",
-	"vREYUx/gQ+TI8igtM43qitNFCxNE3hvI8Dh2yIg4Dp8G1peqjzDwmK1NoWbQTLLh7I1nvG5TF7komVai",
-	"w77x4MG1+iGwmm41fiH6Qz0pXW6eiHOSxtVjh1y5CaSVAE5X4QcBn55BtieXGxoD5EuBLoGUDEIqcMXJ",
-	"zTLvkxP1BGra+Fqr5Iet1dh2i+NZNwGmm79NRpq8oXxG5kO0hOPiUk7LRZho3G6OvHbneEt+KZbBLlVL",
-	"/1H8/0W43dRXBY4qd9vyVmX/VVfI7cb/HJko6caCMKM0IcEoVsZV8zAAE0TD5ZI6opDOXS9wdA8ZApKG",
-	"fCFr3php2+WG49al/QvJzdCjJ3vtu5ebxgiir/Rs/9FYst9TwVeSvHsWywgVPXyfyJuYqt6RvNDU0Y9h",
-	"OB+lh4/Swzok/w8TDjzJdAntu9V4nPUzHt0C2d8s0VIKw53LsoTImFGOJQdrhF7QqLn1H6Kn4xuaTtlk",
-	"2emp+DZpklTI37xZWoHrpJ2QL6gd+rQYzvoP/atGgmQFO9hAVfx10VPRfUHezyHJHtWN+fd0IWBWlUau",
-	"nRfFAavSC/ZUpeJqvG+8Wg4Ghh0C9dWOn7GZ/JL+JqVRMqXdJNemtcOOHGjTbtKFXHTe556QmTa7z77A",
-	"ffYXcqdhZ3/2i831YvntNrMV/ZZetCU/XnQfL7oPd9HNEfiIUMvS64Du5PJzuQ/XU4jVDJ+bq8cKgnCP",
-	"kStJqeOTvZ5PgTqLRW4Gz1xf75CqUBPLHATchH2EO799H+2iqLKhzuyVOETRfbOevvgW7f6x8I6mT9ir",
-	"LHOorWFX73bYC20sJSUhlEn4Gz9GURehMqqA5ioyc/Z8+KpJJ3sdvWntdXcBwlFgUoYyvEB8jWkSGS9x",
-	"wCyO1JmJ3u4pF74Nfau67nPi2vlzWzl9E53qKd9RF+uMzZcujgbMjHuYw+rlsBSGmMNCDCzD2J1BT0W2",
-	"+5RBmusICv6eCUigceq0YB43Q32FQygKjMAGEzLd7A5ethRsouSbCc09cGReXQyOn0sMks98ho+7YKao",
-	"8p+Jc3Ija6BvJz7y3pstZlb+MKwwgviTGRIp4W2aOhf378jlWsX10+X74UP6SyeNrsGd72Hb/I8GEPmR",
-	"9/sFYo3g4QnUKKkcamL2SCuxwcXXzNq5Pf1zcHjOYEj+MgT5HGOOp4vT1BLpbcoZBQ40lZEJ/7kb49cR",
-	"M2ORgfk6on8RUVzDBBbBdTZk7Nvb3f9s//P7n+5/9jPm7VtMbCtm96Md7OenF8+VX4075oQd8XCu7OsQ",
-	"jTm3chfikrAQH+MDE1mL6kW+jHIL5KIQkMh/kdD3gjpyl5okUZrlTuHU6Y8i363vaph0N7vrh1HcWGbz",
-	"MWIohHmxAOPpEsbZYFIUtfhY1sIcu1VAJ0obbUh5oAvhXF6qKLyWA9bh8IYdlRda7cmcDbkZYtb2JbLG",
-	"C5+/9k6QALHyn8lt0Y1swbnysXBbHxnojwz0phfiWCi0+9Ae2px81C66ne+RDrzbcVfWepa+Ge7X0ZeM",
-	"qwh8BMgHk+gwD3+G1DGypDBV0lGU5DzeoYrcmCo1jvOmsD67N2h5msjJI+p9oCerGWgc9o05aJ9J+9s7",
-	"v57/0knI/wQsqtt8ISn9bR3JiYLg6Y1P5HEheGlcwDYahDHYpBaaLaoo+kYPzlfY9Mfj9PE4ffjjRHvv",
-	"/U+Tk/vuLIgY1cBOX1XlSqsMEBQ1FZJpUSyVsdyKBNOjUSJFvCKVYFZbXpARnrVSI96A70U93+RsyvWe",
-	"asq5zjZLuX5YOY6EhOpQaCBE7nPIhUjJc3EhEdy2w74QaPDA75LZ7OzSMF5cgeu4EZa1MByHidHYTil5",
-	"skTXFueNY3TJDHQl6Sl046yytDvvcwLfgUcu+yS7EqXwecVYpkcjNOV0euoJzg50rd4jIwL4LlYR7Dxa",
-	"ZeLAV8tL0VNqMjpHjxs3fbQmjnOpYt+MaxfdQzmNCyX7nnJxm1xRvQGZLXQUVWkl7SX0YMLPpGGgs7BC",
-	"+aaj5qiSjE8o/uAAA2txCRBxGNks536DAbQd3J6oznTPOzyH8LuUXrgAO9rhIXqu4yNnk8VBLO7L+G3a",
-	"RliQxmCLUCC8ijvh3a+qxIVVRkHoOhyXvkPADB/HMR5aCbNQh3KKFT3Gxd3YtyjON36rmdF3u3FqdMh5",
-	"8DPqQWmKnojmsLo43flfRuLXv0STCN0USHH1YCZQuYbTRk9ux93ffb3zPf3Rv7s86P5qdFfiNg6USB4Z",
-	"q8k24nqRJhWIW4jsql2fzsyOPvPsSDGZV9Hi1FTN47GnKPi4amGB+YWOwjydaEKnhS/vGWi6FXXdm1hx",
-	"hHiXuYeeP2gHclFnn0MVS1noEEoklf10fysiIg+73c92Hz7ce7D/2X734cPdn52gUCTkYnRf+OYjs/3L",
-	"MK/QaiQO7xUvegMuzndHeiZrRxJVdtn5XGC6dD5CwP+0IuzvKu2zY30o4BMTRGjlferHAlkW8pqZSfVw",
-	"L9CeGkb6LP7BAeNsr7tLaG+mprKKuD3EtZh4jDZiL0n7dckLmbPzifXwHNSzjCuH8OZclHRJoBfASgtK",
-	"+5pg8tuw0oitXiRoaxoAQ4cfmTZFIgFAJWnpE28FcFqAGH+4ngfoAJDyeyrnllcJse2w1FcKAl6nAPNC",
-	"/ZdqPLGstX993aZW4uQPPhXyuZhqh7VJlIL8kA6iSSdsO3Qcw/VC6UYQkopfpypf9aF3bIIpca+TkFa7",
-	"4OeiwGz8vDTI5PdUay5JsGEXmklldQz6QpvFXmmqCmQlGA8zQ1gy3lM1vJdDf1/LvOZ1FTlb4yz86le/",
-	"Yie5GI21FSqb9tSZgPsherT9ezFF8OkRuIKVwpZSwGoMRIf9XkypdjxyPrq6pwjwD0UDQ5KGGGH3IYEJ",
-	"IQj6vMZ7+wyDgmsRBvfQhwz0tWgAQsHNQ5geUHn2V2fPv4IJT6LJB1ox5mWVFEBlOkBosZbR4LNmBTNj",
-	"ntF9PRKw7Z0w5WZ0xK0VZfuQGuqp47Ovaw0hS82q2zigtUIOh3OdT9n51ApQYG2zMz4S7LWYJpRzMxpU",
-	"4tIfuCHDuRyj6ZX23iefeDj9nmLhQH3yCcwF+fJV49rr7laUAtvBXuBN752vUpBjGX1WW95TMS74FJst",
-	"JyIFnzIHv4gzWoWA1IfjHSZtPKYDwCupfQgTXogo20MUQ0IEQCo2KCBPA43bNY2h69Bhgovxh8pWewRR",
-	"cVGPSLOvMNk2JsO36OiC2eL3uw8xMzaN+1TYcrp9NLCiTNtMgg6kSho9kEqaIfQHasZRHFWNwV52xAlI",
-	"CjTwAChLKA6elMgdvhbTcLRg67RSK67tTmYu03ZPwS0bBfUYJq7HurTwZYd9g708Jn5nG0xJBywUrrIG",
-	"9RR511HCHuOwirw2ZG57pkTHgCuuGoZkPqmHMehjGJG/QInSpD7fRspaGi9BXrQPXZq7dJYRSx2UUNQs",
-	"ks1z4XxyID19tx2Yb9yg0rBXL59sf85aQB+R9OHR2abjiEknpGHyQsEGbFPQ+/7u592earmhA/bWOYxZ",
-	"e59Zlva20kP29Aks0fHp0yeskEpg0vF2hz2VCqGrtHEbsqeyIS95ZkUJbaW/Sn1CPVoetCqXgpnXcjwW",
-	"+SE7L7h6jXWa+IUzFdEm16gZwnadQokWrMOOdTEZKRN86/H6hi2BQz6A6XnLMvyIvWV+RdjbKOm8vmJv",
-	"PXXHHz31dnt7u/Z/qCV9LVWesrdsKgx7y1JfQ4o/sHzK6MsQoew/dg+YDC5ZCx5icbyQqsL4s16UlGz0",
-	"dR2XLJTySGS11wn76T/+r6w7U4OnhlVhrWqRcu4eXfKip8IkoIQE7VetVJfnzEg95tpcAf+CDXiGOWoo",
-	"Yo11WYs+IVZstw0VAWkhDpd6MxYlrGSHnXpOwFshnW0EE+nXKDzmvQ/LhufVrULMcZKHNh5ETyEFt/VK",
-	"6svR9i6C8H62hWi+WvS3oUulamamhWjG2h12qq/cTSsplxnc14H7gZrwLZJeymKF5yBuV5rqUPh8NHgK",
-	"kEWgD7H8V46fnRjB0k4KLeUikyNesLHG65cr5ukaEmGFVCrd7TwQ2/fTNoHsMaBrE4OyhxFA3awuzSFL",
-	"v+JfAUE9UYO0QmuXr0VsPqZ82qWgatyMYIIgxBiUCpkYd9NkoijomglXChDZKbOaVPX66p5hcKYDZcWd",
-	"RcWVz40H65dP3JTmfgqJ1HA2kgQCF+aQ3ifA5jCcR8eHV9c7CQbA+ziS60BaPE1zrrJA7KAOZ2bHj/a7",
-	"Dz8lXojWDSfFITzjIoiSpTtQcjbQk35R5+hRStuj+fu0HfYMzrFPzGSIS6R5bAFKIaZyDWw2HLxAWIls",
-	"gcKYhYh7KPKg26V3JmGhCi/B+QRJcNHjnUYBFZwiUKGqvW4XwlAZSix4kEMc6jY7I5kDBRan0BZOegw1",
-	"grOSSzmv1TZRE/J1PyRum7GCT5ETOteEpoMiE3n3Ek+F4vY9g5XmApjiMopKgSrOSwxaRrsQKqpcRhfG",
-	"w5R3Op3UrxsZCa5xFg56Kk3TnvqV42Wo4YjqjofaauQKtndZy12t81dou6dgeydeaiKBsn4feNKfBJqQ",
-	"eArTU34pEyXhe5E83U26nQdJt9Pd7e4lydIvug8/b/5iL9ntdOGLve6D5i/uJ3v0xf7uLn5Bu8e/T7Dw",
-	"g27yzXa3u7+34IPd+/fpg/vJnpvQBe5pp5PNIfkijv/3YtpgOYCdgTstsIF4ZThoRicJYzTgAstC8Ia9",
-	"DWfv5b2JtlZ1Qy/qV/XxnfctIGChWoVXMGEVXNOiXkac+OYwTUu6GDh36J2Gy2cGVWBRhzz3v/akPfcF",
-	"3t1Z4qRJ5DaZbHnBqF7B/ETgzQ8Pz0VOJBLGPJLqqVAXdhirouPkbx/OKfN0sgpC0qU+9caHS083ycO1",
-	"Bfymo9Wlk+Z7ak6Hk5B52hVyV0PI2ecWzNkso+itJl3B/ESnqDwglgwt+dLEeVn93KHRQbEqThIbnVFe",
-	"gAC9TsDXudaF4Ao3w3oxZg4O1wWZlRNFGE8f48s+usfesUED4ngZDwd5IG10mGOLxkStGT/SYLzAzfxB",
-	"AstgHN5VhXsN4QEOyUsFLvdNUFs4WRf1ssGWTM9qHi2lyIREdMs6xVtkHb0BM3Q6UXeepXmilhDzjybG",
-	"XwC8gTcY0Oa90Rnc3L7oE4ferQ8glYkMIwFo3iT10+Y8u0D15ADoS7D36dF4ghY+lYnE3+oiqMVMMNvN",
-	"Y4JRXKkEbC2HfJ6nh85PzRsZyWpHfhfoK9Hgn0Wd97ZHSraFIqrrhI/OxZHG3agsowFmFlTzDkcWUfhF",
-	"gXFBlb9WUNifxh4dPfVIlECLZpMyeMr0h+MkNm1MihrasOmpXGQSSFzCZlAVMTu9cx/p06P0oKd2O1Er",
-	"V7UuLoQNPmCpH1R62FN7cRWZnhQ5q1ltZz6/P9tiQMGXPvHWTIn9uIQzibjUhjlmXIgxiKFGp8pCzOKZ",
-	"uh504hDeZs++kE+jhrXsNB9uN1DKiciYQf2KW0tmEyhg8VqTXqnZlBChFGTlEQXl6UBFKWrN5tIueDZz",
-	"0c6WbkrgO6yACg9FKeAKXZBegQ2lwdmdybKANWDd4GNZ2yGZLkuRWdSMeqUFNl0XAe+hoY3lpRzYtvMb",
-	"9XZ4WEk/5dI6k109k4WbNKzDJwPnlooe9tSn8XapQVIfsBQ2BU4KL2A7fBZ/GyFds1YQb+CkJGS6C2DX",
-	"1Nn2AXbBnSqg+DW36OD3jEebycgRFjD6PP6qI7dpoAjP0ZZDcrjpKTLRHSFEygGLGYTBUJa/8bawKqMH",
-	"GudQfffky5NTdroP5LUoBLnPpl9MVA6GGOjD83MjyktSxBvWuuSFw0nBwb46fvWMZToXpIOyk8gDuuaI",
-	"dsCqKWA//X//nnIpJyyabHjcU+NSgKZUccBcC4QRSmRcgT7amdQIvg+7c8jSXMDFmtIJrHYRvkFq+aTU",
-	"o7RayHaH1SetZtGc9pSfIW/dQy2lW3Bn6Cz1lecoKz057ykzhmvRDIWw7AppHfym6YYlmxQcDSIl+iRj",
-	"nb9N2G8Stp2wf5swy897Cs2EAXqdu0uqzcalGMhrNwUY2jbWxpZ6PBQuJQzcPPEdxeH60zRRZLiuQevg",
-	"lNB6M8iI4pTT/pKCUUNEK5N2bsqut+OdNiw+277c+40oP6Mp9Husp758+hm73Os86Oyy9Pnpq+9Ou7sp",
-	"Gwlj0EdfKvb49DOGXhF4KSEoZACYZa1nZ18mPfX8i1N69fyLv8bXNNQDGlhCG3GiwMxObxhtx4TpagP3",
-	"lJUjTFhLeBrASY3RtZ/q9pRCkLE0cXe7uIBvmFB042Eucl6WEpx9ye0BHRSePX36gg1Kgo7EtJRfvnz5",
-	"ApArVXDGscNSCDoq5PU+UZkoLZfKTtn5JL8Qlk2FczuIE8ijgvuSFw52HhfHGWoWSCCnwSn2Awgigc4s",
-	"U3wdeWrjNxxMynQsWEV7OpUmUZ/DnY8M8nuq52geFqvn5lSXW4u29vJyS/w3P6aJ+yVkZKyntSJf44m6",
-	"U99Nl+wbW74FR06qJ2I/A8Xy6n2X0bbFZ1LFea7RVMYi8D3BmJoZBGCLItasGIWGV7pUAJEtBv2VlYWh",
-	"VQl3YPgdOL+nCLousIJVHIuzWDq9bGAuojgxG3uS1wPE4L5f4GzKlvuaItZyjUOXZk6uvOLVdB86vyES",
-	"sOAu8fE4wX/Ma4owKR1KWsI4X4RFif2cQb2nolYxOq3i/2aFdHBc8HvBLbiX5SjESVojigFKCICWhzoF",
-	"P9JI7JuolW6n7hKMEJHR5O68UaGtIdQdEs45Vw23NQ6DAwSTec3HtAaxi5h7oAQHxgtEIpfZJqAk2xDB",
-	"NuQmrtSJLX5oJBX0VDW6xfZKN4HvdUHeQRpl6tXPhMVRuy8b77MgjgaIgrLS0ni3zI/QyB/NF3evLM3z",
-	"sButjgwZbzxmsh2K0Sa3+xJThmto5/vg4/HurjWlg8rrjehnwnhWamNgoHQAPXIrXaOoR+2pOUXqIVtx",
-	"m4Sm3M3qBJR1IsZctsrKG26BQEJkbaFMMk9nIH1MbehzN517uyBMLPTodqD/7tIuU5+bj3LEL53wzJ1S",
-	"PrNb70yiqHDG6ADDUchLfsWL9USL5dTniynyd9AIhp8wzt7wbafvjN050Fjg2fIAbuby874EHjR0FGGI",
-	"TIJ+8+7sQocdTGbV/0qv4fLr2pLLxrwY37gyZ76JtUBX3oMOvHp18shTgNvn974JU/AzQT1X87iA8oQ1",
-	"q2DuPjJ4Hxm8u6ez/mgwXu289SFuVpFSJ4Bvj7gVpeTFXVq+M13mhBHjzIeuTQy5yXS+MJ3FmSvxLHTy",
-	"LinBTGNLU1z4Dn0EubiTJBdzW2Wj7BZ3lNAiE6XTEZbCZ6bw/YOtbyygURntwo6clQN1jq5ohqbAFI02",
-	"qQuNE9djrnKR9yNbSEo+WWkGnAck6aUQptQFdqRWF6KkbBCtH/+B8aRSc5Uis1xdTApeJj01Yb9lfOen",
-	"v/sv99tgIJvpoS5rRhaKthiXYsxL52AB4dQUORcGSkAc0qK7hP+4P0ADo4/FdqN2r11UmbFiDObwQkJo",
-	"oPO5A8PnJcSUkC1s9DTIN7LsqTBO0z6M86wlaOvCKrxlD6GugvF1zAkNxBlsf+sesB9/YP/y/2euCzvY",
-	"fDu4jpSi4FZeirD7eipaE9CcnmN8RNXAPRcChjpCGgYk/t9pwYz/+MPX7Z5q/dXx755BgAr78b896Ox2",
-	"Pj1kjyclB5qzc3zy8uiY/eHV0TN2NB532OPOLoRkuUwkAQC6pxys0QHjSC6ZxCAq8gWCKM6HS5BzZ8na",
-	"HWHozjbzM2nw5ka7UJ50l5Lf1zdLkBEusrT5Ut35HtbrozfzR27xrm9NohqRW1HYnDdPj7FwP986r9io",
-	"M5snXKsFXejeX4DKa00qVRGnj2qvXwL+0fucrc1UXQR8vTGi74kxE2EYZyVXOfBCUA1rBWiX3b3P2bm0",
-	"pl2pkcGNVxFajPHqK5GVwgadFNp1fbCQKqaHIYJVlB7GB54jE+UgYXoKUf3RhQs9iwt9YZi0i/mUl9DV",
-	"O2JOsO6fiSPBtlcEk+EyRWh2bgHA9Uwhk/dLJwAfb/i7J0B4thmnzRIRHkcq1rzT6esQlkS5ZdamL6fi",
-	"Ur92IhDWdOhi0yskge5uu5LDXE5GlzcY3a97KoJF8G4NJdabU53OxNaI3o/d9aTig+m9a6Rhf362aFo+",
-	"ZoH6RfDBsBTvf0xKoXJzRzCn9IXLXjebTj6oOGJI7yhYBTUaPQXO6WH/RwnnU1PoMaBvYFj+OTcixjwa",
-	"CU6mK2esO3uENVUBM6kvkVae/lV3yWilcn1VNbjXBWRwuCpLXXiYDyMx8/yP/7DHzh6x1hUvAQucVC0/",
-	"/sN9fEi+am20bWsFPlRnQ3E15KWFyIDSstbJ2XP22eefdbf33HC+EcZeYOgiumztbu+ZqvKE7W7fB/Sb",
-	"ve09k7DT7X2TsP3tXfIV2O1esxYF0rRRtSJgIjlFVFUTa+pBTobc2jFKW2kbInEOw19x8DeovpyVr6fS",
-	"0MABG/DCiBQ0cJdSF6Rt83o0g4OZzUcLbn2XukBXOvQ7H4grj+ECgIOzi2OHonT+YGHRAQSE1gNd+xRk",
-	"b3I5+rFJaapJmMnQH42qp2BjHzIIJ1cZQXF7tHUV7wiMVEDo9ZbiJQIAWT8XqB6ERcRjxdyFnkT8IUbJ",
-	"ZyJxwUfnGpELpuRI2VN/OGZ4keeTUhiKauVZVopcWodKVQpQelq4VFTOzp6/cBhsiIjfLGFibxbcI8sg",
-	"K24nl2JTM+7w32kbYbRr40jgPL0IxRrQLR4jegDQj9ihNGFSobfr5UKIEtgYt4Cu8ZTbhtbF9YrWrb6F",
-	"tr/UV2zE1XT2TCYVG4ThLnUCmhB4p42I9KJe+vfNGPF7MUT8Xg0hfu8DAzrTeVrkOSlKCZMCR9ePKAmw",
-	"UCqvSONHo9odZB4q5cB6jsOhGvsDTdE6FBuEbMbMZQ6LU795I7aK9vptaT3wetgZF9p2zOXFHbFf2Eot",
-	"wpDaTWdAT6prIWHkAeJcvd30IJdyEPMODqiU/A/pKsuEssgaKHe3EU/UUxErRPMcgqN9bch60KkQ6N9Z",
-	"CO9IhOZBRC4u4O4+bWBGlLbU62WX34tC27Ovf/fxDvx4B368A6M7UI74hdgxlxe/uR4VNwh7Q9Lw8Rq7",
-	"/QQoMemlEDak3QkjKnbLtxK0LbJJCVpDoIrngpeiPJrY4dbBH799921ocPY8nFQyPXqr60HN06IKf2pV",
-	"wrhpd6r9DqUaIAGfEMp/XJc/aBSNEuE8wC1qoirdnMxXeqIuRWkEG5cil5lP/uW1dDWwx7i+6vOmSv9w",
-	"5CAFsC+xU2s9+bu4aipchePVc9wkIehmNsuLHQoPKDAQIq+14jzL55r5ujEkLali9CoceYd/oNhAl5mI",
-	"an+TNVR8hFeYzHjhgq1N5NYCgqsYW45RYLqQmRTxtLoCTbW+OHEJUTsx+YYHTXmn0D8wTJiuRy2JQmS2",
-	"1EpmUfbmeHGxdEO1T8FcJEzInYF/joQtZebrj5LGdWbRC2m3fPvu/xkA",
+	"7P1fjxtJli8IfhVb9hREVjkZjFAolWKggIkMSVXqklLKCGVm31tU0S3oxqC1nGZMN2NEsDK16J0GLnpe",
+	"+z5cYB4WC8zuznNfYJF3sW/Z2LdB92fY+iSLc46ZubnTySBDIWXWHTW6UkF3t/9mx87f3/m+NdazuVZC",
+	"WdMafN+aCp6JAv885VY8lzNp8T/wJBNmXMi5lVq1Bq3XU8GsfivUPcMK8d1CGMu+W2jLB2yqr9iMq6V/",
+	"bpi0hp0vxm+FZVOdZ4ZdTYVik0WeD1XbTgU7XxTGdhI2FwXLCj6xXSnspDu1ds7nsltwK3LoR9f1sNv/",
+	"rMfOhLJMKyYuRbEcKq7MlSiY1YyHHl1JO2WcXfJcZtTd3lC1kpYZT8WMw6hm/FrOFrPW4GD/8OHh5/c/",
+	"O3yYtGZS0cN+0rLLuWgNWlJZcSGK1rt3STk3r3Qux8vmycHJYHP8ImHpcNHv3x/jIPBPcXT1W3p2JVWm",
+	"r+hhOmApfpOWkwdzktJH6VAZMdYqM8xNG8zpPcOM/LNg+lIUONWFmMg8ZzBrnYSJ3kWPpQf9/tHVbw9T",
+	"NtHFUD3ol/VzRnX6ycK1YHrCDvr9+mzNubWigCH+6Y/97qM3vzm6+i398T+0wlQZW0h1UZ2pUzHjUsHj",
+	"lck69R2xfkuxGV8yY2EMRqiMKX2VMDuVhmkl2FgvlBUZzcDVVOdiqMJgcjGxTKpox3WOWCbGheBGGBqi",
+	"4ONp2CFcZW6+zFBxy2y8r7kVPdaHPcbZ4cGjO907p8KIhnN1RuubsEIvVCYytpgnbKGszCtdc6dJGjxF",
+	"jF9wqYaqnYbqu2HGUya+W/DcsOgl/jftHLE+HUUZqrqTMQpbLI8nVhRrxwfH9IpLy87FRBeCFVBEqote",
+	"K2nB0shCZK2BLRai0plN7b5LWnNe8JmwjoSdLIpL8exx8/Ecw8t7hskMmpTweM7ttJW0FJ9hxdnGrvwP",
+	"hZi0Bq2/2Ssp6B69NXtff/3sMU7Es0zM5toKNV7+QTTQiWM2zqVQtjueaiMUeyuWrM0ZlIf14OxC64yN",
+	"p1qORYfZKbdsxt8KgxTOFlJkYeszwyfiiBkhcJ/ouSg4tHLPsKhNWl0cLVHScrxRX7vQ2domeC7UhZ22",
+	"BvsHn+P6h99JhSgcd/8j7/65333UGw26b77fT/YPPn/XTBueKWOLxUyoNbeLDO+ZzISyciJFkTBu2Fwb",
+	"IAB4mJHeLZRZt4plI7ddzWehcez2K34hThaF0UVzt1Mlru1ojF+kQEZhOeaFuJR6YdicX4gjxs8NDGui",
+	"C3w7kUBx4VUYxXcLUSzLYVB1rW277PqHZ3Gh1h2BYqE+7AF4B+XNXCsj8EB+wTNH7OHXWCvrFp/P57kc",
+	"437dmxf6PBez3/y9gY5+v2WLr6gUNVod6gueT3QxExkzS2X5dcKuCq0uGOxIpgtiDxaC6YU1MqPjQ9UO",
+	"2MyXHaq/PXv5ZQKXJe5gIJuFYJypxexcFOxc5FpdmIRxxRbqrdJXik2kyDMo4g4Ig5u34OpCsEupc24F",
+	"vsWlZoF00THPtDBMactgapZ0bJu4s25gz5pmx5XYqzFz8TXULXmYrWpwn1eqqFzuW9VSlqhV5O7ELSuB",
+	"r3HFT7Sa5HL8UfcVHiFh9KIYw0ViLLcCjvS5zIiX8ZS5zem2YUAExJXIGM8LwbNlwvhQ0SugZXphGWcT",
+	"aZM6B4tbks8EkyWRxsuCmCS4+ie5vJjazqedcsNOeYoLlAn1sbcKcbY5H781JLEwM9ZzwXKJl5lULL3u",
+	"enLbxXcm7X1azE2L+UxZUSiePykKXXzMBfUNMwEt9xgs8LnOlszwJUgp+ZINW7Ly0bCFskZMGOjq/bS+",
+	"a9f3S22fghj0sc+q4sAueOJeXsbiWhr7ac02rtkrvsw1z15r/ZwXF+JjLx2eQnE9FsLdwkYUl6K4Z9hY",
+	"q4m8WBQiY6hi+bSOG9fxTBSXciy+VvySy5yf5x99KTNu+Tk3go25gtN3DpSTj6ciaIRodeVYgLRspgtr",
+	"gTXP9JVKkNluT5C/vyqkRflZGpQquRpTSWGgxsxR7HMx5gsjUKQMbUtQCwFzp7LzT3z4pk3j9D7doPjZ",
+	"WLhUEeHqv9b6BVdLrwv8WZizSJNdcIt7KqhUP1GMD7j4Xyu+sFNdyD+Lj3rVv5DGSHWRlGJ+EoR3XYC4",
+	"pt+KjJ0LXojCmQ8+bYH1W+Dbb7/tHi/sVCgLayZW1U7pFziXqbM1KJYib5wybm0hzxdWsPbp0xP22cMH",
+	"/c5mXXBdoUgbaV7osTAGrqsnykq7/Jj76VuR512na5JqvrCkyzkvBH+LOttFLrxG0F1cR24GTIpMp0Hj",
+	"xFDpyUSoDC4zVCKVksMiF58uoRs4l6+VWcznurAieyEyyV/jTvnYiiG8SO4ZdkKtdqEXcKUAJ6NVTUvP",
+	"+Hgs5tZ8Ii8bVvadP/44N8c4Y1yNxTM4avCIZ5mE2eT5qwKm1kphWoMJz42or1FZmtlpIQyapY/INAir",
+	"g3ZEUMhZtLfAYgl1IZVAe8qEL3LL2mZKat48JwWOVvjhTNipzpB8zaN+fN865+O3ozHPx6NcX42szkUB",
+	"PRjNSXEprsf5wshL8SIycwE54bY1aGV6ATx4Ulrk9vulGYzU0DDNZSMzqUZzbsxoUvAxjfv7jfU1Gvaa",
+	"av5AXZ/qmTZjkXFj5Vja5Yjn8+mNJ/EYP3qXkL4FlnXHcqCTG+nJaCJ3LTnjKuNWFw2mvZOpAE3fFRj2",
+	"2ITLfFHQv7SZLkWRybE9wh/aTkVhGC8E49mlNLpYok3Gipm50dQD7XzJZ4L6c/2MCu2X88uLgi9bSWuh",
+	"5HcL4d7DbeoGIPKdR309Kswdrz1s1lxcitxUrM4P+tGmPFi1+lLBYmS+W/CCuMf32OF6YXMpitFY67dm",
+	"lN3d6HzFxi7QmvhncYeVg/lzxyW8FIWcuAtw9TRXd/IPv3r8AxjJoiIkD/MiY+1nJ9/snZx80yGfDXD9",
+	"QV8EY0FsGiqlZxJUoGhi67HHjnQe9BPGQQBgX5+xJ6+O2dm33c8PP2MvkHSyz/v9/uOhGvNcnrsLMm6e",
+	"Tk3Oz3WBp++ecTSXGeG8jfSVs3XfxRS/C0/0+d+LMd6s5QVS3qw73D9P0AIQrh64PSa6GIvE3y6mvFd2",
+	"vkhWh/f+t8Qut8EWpdeT+i0KNxD6LUo1kvktylWI/O40uUKFG0juVj2oENxtSlSo6a2I5jbEcYdSNcq3",
+	"RckqWduiwC5EDXh0Imx5rsEkC5rCRhJnWDuLqNZ6eoUM343dfBfLtH+MF6q2NZo27Npzs/44JhuJxWZC",
+	"UN8n1Z24eg4ra9a89KvbKD5gG9fwTRMV9tuj7ldl5IXCioDDxwnutTbS/X7vQcwc9Pr9/n7DHjtWPF9a",
+	"cSO1r9Jr8qjZ3s0oaX234MreeJ1TZ77Cb98hh3djma/hm/ouxP658o3THDe0o6ClGKfS4GvkLaKBfyD3",
+	"SxDWQdkB6g3TY9865dDq59a7LQ1VeT6hDsNn81wYNuZFsWSpNKPgeZSyc4GOPWn5iIwH5HoBjo/SWpE5",
+	"+W2o/HcMeQ92PLreOx5JEzgbKFsOaqzVWCiL36oEe8Ndfxz7/+wsqjOXwlR8jci1l7XncJaU9Qoiz/zo",
+	"wtxjM8EVe3bGfC1Hnk0Yqs/6f/mH/7x/8ID9KmFjPZtpxZ6dvOq+OGNzPMfAU0wKPWMzMdPFsoPjzfnF",
+	"haDZB03cVOQZGbFpLcDfiZyipGHX//v/1Gf/+l9YJvMFUsZ//S9sQkydzhczwf71Rz9cPtMLZeFBViyZ",
+	"pyPA3NhQt1QXQwU7rXRxhW6AiyrsftePCnPHx+NCZNK6GS7ExSKHd1jw7OUrGLcYKnSjO2K8rIvNRWG0",
+	"co433u+iEGaRW2IPq+c0E2M547lpcFKGrjKryYiE3u3+YzQpCZ7BwpVkxzIyNppeTGX2+5udZ+H0WIGz",
+	"Nsq9yqeBam0SYvypGfkTshvlkWZEO3I0lRfT9TxHzDH3b+pSqBOuoDup0q9xcSM39pX/8oy01GEb3nqG",
+	"yxq2p7hJK9obI7c3VveZF5DuszY6Zqd+l6VwFMlvtFPdUvG9td/oj71KzxeZtE8uxRbUvHpASgmhpvkG",
+	"PfcVNyzTSviQg2KheuNCcCuyNGEpUtsekdryN5/PC30ZPykEdFNk6PxU0/In0IMmz1vgtj3lJE8rVL1z",
+	"qKi5ntrCcyu6Vs5E07eZsFzmzUzknBdWjhc5L0zCpBrnC1Tbc+/sV6BVkRuteo1e0PE1zG3LDzBpBR7M",
+	"tf5m3To+1xc7rqK49AE/W4kz0W5ZkWdqI3A1N/X1hOPtYdZsHroggDDjRleZ05UPnGocGTl/AUeuHOEe",
+	"HBfSikJyuuzmi/NcGnAVuFjIDAo3KA2q98pQVS8Wp1KA+wWUwGxeiLHIBFZFi8vOlw23zVCFmIZccOPs",
+	"NWGmV3bXTCqvtFuVFlGU3HF5YQkXVmSrM/0UPqeID2QxoHKIp8kz5hwsfFmcLcVSEAhEhsQH28KZSWlL",
+	"puTtdjVdRlv7XOtccFU9NitjzjcElZU6EdwK0CNeOHf/I6Yg3KU2gimHraLQm/sK/7ZhIJuEsj96mp60",
+	"oNrWm80q3W+nwk5FEen4XTQG8gTUFSDXmaiqeFG9eyWNcCOKdbyrs7aNrFBRMNASRdMcVUYObI1DKUSw",
+	"KNJxs6VlA/gpPEeNpNPAgQH5c80CYjSK/wbWZCa4wcOKPGW8hrdfqWYJpuya32NhfpLyXFRFTjdHGwlt",
+	"OeFNMTy48u7yiagVxf4NWFoK+XDLkZSfJkOVRhI+vKkL9/AsyOdAmaRW8CxI5FhJIeDNpQj83ohs6glL",
+	"g4COpUAKWvB8BEI6PHCSuMFaZlppq5Ucw5uskBOb9lj0lLXDnAHZczulw9wiGJKcSKKyGkgJbJixzZcs",
+	"VELuNCjz6OItCnxcXYiebxCdrfwqMW6ZVBfC2AEWUeIqBG2ZXM/L24DOI1ckDjwOFnZ0mC+DiOBtKbUd",
+	"9NlMG8uAqCs7VJ4PoTZMUjrefyuMvQDhkxgTElJZ2wgxVOnvnrxme5f7e7YQKjNpp8eeVc44W6hcGBPT",
+	"jFxSSCzjZqjCpCbuEELhYHykMFmBYa1Trth+n9X6OVTok5r4dqiCcqnatgzv87Idq5FICBpIgzg9kmqU",
+	"cStST3yri1HS3mKhnM8Cavp9BWzG8R7OzVE06nuGpeJ6Dsc17FOTOvop7VBVu1zuL12EuUyw10hsYQ6d",
+	"fl8tZmsUaVUVWoPyLFZ/uePVSlqxvmvN2Yp1X/hVdLJKFRf2xO/9VtLCTU5EqjrVSJvUpSguhEJKBKyG",
+	"NCAEzgs9kbmIiJKjw0nrugtj717yAlcBJgHJ1AsIznMTQQ/8bOCv53z89uXkqbT+we9XZwWff8HHb08q",
+	"M4OPT8/C7NBvN0VnblRP3AThy2fRLLmvaapOaabw2ctyuqi/0Zzhg8du4vCHb8c8U49p7vDxSWUC8dEr",
+	"P4uv/CRSpFCprWmi5t5iVVPrOB1GSUBA9LtBpwhibPi/G2RKiGCSyF023KpXumskaErG4StSagKtw514",
+	"yXOTsH7vARDffu/Ro0c36jsfPXpU0Xg+aO6VLXSOfhhmR83f2VRcTXmB3DpUQj6UhrWfnb1kDz9/2O8e",
+	"dDwvEKKfwOc2l0qs2rxIHkKlxJb2AFci11dbFsD1Flt+fMULBSqAHTrki2zboxqP47pXrafWkcqok8qk",
+	"vSmZKcfYRGyvW+jTRd7I4pR3ILCL7fBTWMbzXsJOcql67GQqZj128JC19x99vt9hh4/udwYs3e8emHSI",
+	"DDopFc/FUquM/fQvB3Bdt90AOkfw6X2TogNO+OY+O3t8xNIDqITZKw0cgjJivACi4z8L9z3WiBvtiKWn",
+	"3UMqw6IiCVQ/VPxcXwr2G/zee9cho46hnFfsL//0zwfU8mF33wBswqJgqy0PVWh6P256v3+dMitUpYjz",
+	"D8KvUf2rJ4F5qd5mMGWtpAXT0UpaB/QLhtNKWtAfeNe/3vJWgEXdpxrgr/v+r4Pw7PTQ/3W4H77rX9PO",
+	"WBPr/HLOv1sIiEI0wjIKUGZtOL+fHS6K8kzPgWSoC6+08nHjD/YPtoojH3UbsSUSiu7f1RjhNf2kaWLf",
+	"Bl5GcOikqQrD7mMOmzwHJnmsxWQix1Ioixx0lSswKUnHY33JC8nVWKTo0yNmc7tMiEGmo21IO6UE1A7N",
+	"4HdwGBOWOrkR+a8UPIbSxNWLLkUodQ8VSN0NGmw+Jnox4rZR6itZNxCU/dfVu2KTKoyX9q+Vd+NIw7NR",
+	"evXfQRkc026W9SarerwyqwN/pthMZyLvAhIGPGO6yEQxYHDV8IL98byfsPP9N4l7MNKFvJCK/RGffbfg",
+	"WcFBlnXfJez84M0RU1p1XQVYuwHGOn0BfzrVSNvxx4qlSiv6thcivUf4Nu1UfL22cwdwCqMHTROxno84",
+	"aeAeEEaGRCO0YHgVQOAqtrJqJ61y0ze169+BcFDIa99wvGoJMz/91/bf/f/+X//w7d91/vJ/+f/89P8G",
+	"A9EVzl70Ha1cZcrubO42TyxpsjcfLBfMzYNJEW2TVu90xrJJE0gO8c0sExeFAAvihE0KITI9S5iC24rN",
+	"I2VNZFAit9XRpShMI8f7OrI1wsmg74lABfGPUCqs1+zj93v7vX6v36yld15XWt10oJ+ED98lLTBLmiat",
+	"5diC7QPdcakj1D2nbFPa69q29pp8Ku3TnF80UZKp4JdSGEvS5E0VoaR1NuUFquJkth0yRhLjkjTqR4Pv",
+	"Ts08JI2Vamzp/BovlUxIFNlsWcwDE79xQPQVnAYU3Bu7R69GoAVfv6noI+Y/aj4fwCVUur7f1HUkrzf1",
+	"HAkvfK2ajo+738sJY23cpBna/YXXiCC0VOfmyQzkfAsolkvxZfga9LVaNl5S5BIY1CiOJUn8TOmC+Q4n",
+	"7KLQizmEJi0dJZeKLnMjy+ttex9i6OMr6FbTgaj4idUDXgB0QmRVAg2XiBXFTCqiKO0FSdLOy6pyxXZ2",
+	"1c+jxvCmAZ3iR+8izYzJNtDUMOeZuJTUZ9Ne7l13Es+y/9v/esV+yxS7wgEzM+a52LnnaDO6sev0lfse",
+	"dUAa7wOe5y8nrcEft6Evb+qM76tCGIeWxxUL1Dkczoo/DFlyC+E2HtkByCFvtD2Fq/HGDUhgftbpgzU8",
+	"Adp1V3bz+970xnK72O5cnNGnkXtVdRhfn3z9go11Kc2t8QwKCqMVauqZo9FWZO4b93Ugd+7uu7Gc+wz0",
+	"ELiLR2OuMplxK9YSo/AF6NzHuhBOLZ7yhdVpcB9CGeYaqDlWjPbvXL4VrI2iD+w60lbDFEW8w5rCna0J",
+	"F9GfE9/LJurlxwrqQdWs8/u9vnKNUwwGnu7M8ToKdloujUDvH7OYwT/Kw9alEYFp5oTCqLY/w9+GIqsH",
+	"+bUHpxJsYTwIIqIiEoIcOY3Q8tApxjg0vNPi3oxQqS6yO++Va3s81doI4yHOTCliJ4znRpdmBMcm0B7g",
+	"CnUwASHNGQnLjegE9HNB+zGrjSoM987HFXWVm7d0lWHjfxaFHk25yvJGdEvYXPBJlRgYii927ojsShSg",
+	"SZlb57xQ6GwxhmMk1UQqaYXfn0ekTPDzogTjhTbiZtcSAnMjAh5Yu1VGLqkC5nlp39E+z4jFu7p59pto",
+	"jOfvm85kfRprAv3qbVIROKv3PApQVTMONBCMQ5GEHJixoIgIbLLnNEr6Gm6NpKJlqUiGkRJkRfJqtCsj",
+	"RKV6qovxzbqsmqZnjf/ETJO1EzcpCk3bS57n3MhGB52l83HwDrNluIpUYMzNTCPxu5VGyOv1br6ZF7MZ",
+	"L5Ykb85lIcx64VyCyMQviSKNBTDOFeOks4swhGes2CS0EjdM4B9L7Wtg9nJu7Ch2Zm9erJyjt0T8IeMW",
+	"iIO/YLhNqw4T1B2txBa07Zu4A++S70suKc9b71acKGjq/TZIyB8tmtqmYUWLvHaDP5dmV0fDW++cHXSJ",
+	"tT20ogjgZjTTxY178ffcvNAk/0fQnzeV+lJc2wimc2UZTKtaXdSfbab8y1g+3UFDjr54PFZt0pnnWWYG",
+	"EUglKTbbTbq5TuKMIjon4CW9sGM9EyRjBE3gZKHGDqD23/4bspIQPEjCx1AJY+XMIWSq8VQXJglmmmAd",
+	"Z846XvpqVPxKQEnu3ZxOvimVneO3XW/xF1n1XgZRcAm23UwUQ5W6+slRGPyW0x47LrFbjS04yoMwVca7",
+	"sZOu2PSG6lUh4ObA+x4vduKEHC+8MNQ1CYZr6Mk8fI4aWYBzJvqUghuQykb4JQw87TTq/mmiVikNKqnA",
+	"9RFURnriZjSOMGBtfAvDp0gMh88B38HEgyhgRGfglBHkifH3i+yC9JrrnRtXtajopUn0cOVreMfDuW9Q",
+	"YemL0fUGPGe4mrKCXymC7M71RW15+bU0zW53bpNC5d4I530yMrr6IRqzFfVx5B3MjFTgN1psaY4LR/Mk",
+	"qj88PAsNhUfPfIvPXYPlx6HlGPx65Jr6fsO6bJSO3bbfmpI6/4qgQSor/+xwbe3lodpSoLdTYfku3442",
+	"aDAdoRjtok6qken6fJd7KN7mlU3tB1HrYBKOrt/i5Ro0zddaqk8rsBvFf6nEitKxhNbOJL9Q2gBBg8ia",
+	"8icctZItkbYGksjaSpPFQBcgwBVaE82skF/UPOEH5HPTx0+80xUphjbhaBAJbzR0RYceBoXtBiLs7L87",
+	"KvDGddehrcxiGOUoCXRuU6GmFr3Ct9m5l2jxrnUGs0aj0aHgFzv3MjjJ4Xo1x9vu9/s//diuLRyarSqz",
+	"2tmr/NxdxUpi4O4jIEl8y0WNAlpHcZPNGLH5kvkChlBFscCuYyOheZ0Ovq6oRh1WSO/g99F7uVjTxqkf",
+	"g2jyQh/D1oxWZM2sRbtu5bAkKwe9ca9Fx2QtYTwL+t66CQDjOBC7u8eOSydjdL6YEwbXiDT36VGI6qGY",
+	"UUWL6NmF6tetpOVddbHbFNO0rR9n2edXVOuprzR6dVzWHz09DU2FwTsZZ9dQr4onyR24h1QM6NvVB+4v",
+	"IhuVXiKrUV+l4QA/cpZhSU484Psfe65H3sSd3RjXOzPt7mZWvUu76FaAD43kcVfDz+1tK6vGkVtaNzbA",
+	"lDVofj+etjRWSzZoFqsbfoOmsYnUPXYR2k1+A/SGTTC8ELNKSJE5DJ4gV7J2iBH4raOD5LEZhX93jtg+",
+	"3Sqko+/dDmSn32/EMnoSO47swMXeZOBs9CcmLc17hYZuNuZ7dppcDKkn/jI2FfqzA2Fez8AVglANRZP0",
+	"vOY2L8s07agVXwCQhEYUz1o20qQArX9T6WbFsL1VJqW463H5SIPvWqx1MgqobT40YcdtJzytWYvt4+sr",
+	"i7Qqivkt4y41bCBh+11wrM0a3TyOAqzBasn6QV0XYd8cN766XzZOYJTbZ4cpLE/QVrqG2nJVVRluTOvD",
+	"aev7dzsT4WtxbRusg2QWEaRsdPhnhVRvGbfsXNspEwowJf0sliZPQBxyqefAMx/+dv5cvBCuaODYK2fp",
+	"bvrrnaGgtaihun6jdrCa1t770TWEDMBN45z2eN1lz8Q+eyzNUPxXzuVuRNdlOqCQAXzm0kbONKpzuWJT",
+	"nk/KeH/Lc++a4+Lyql58kOkunYirUTh8ZjTRxcgcQMLF/T3zpwMyl6NNnXSfQ0UtY7chwpji8MLkYTeq",
+	"AW6IlhRaSKsu/Y2DhBu/qVtbyglu+h+7qlHP+62v2L18Kq5OQ/VPdXF2gPTZWy3WRjlzBuYHzEpGKh3D",
+	"fHpEifZwSdnMnJsBz5r1qr8XPLfTHWlCyUL62dNvaSNmyy2nhtp9+YeW78IpFa7vctdU0+Z+drZd9H19",
+	"5xMYTgR31I30aw4FKI5d3Yj0s8q4lJ+P4OMtdRYbgvE347xshy+zUulGoJeVOjfFsBdiDHHDyx2q21Wf",
+	"E6Lkb3CiWBl5RftRX5ha18s5iaY8Ck93KxS607glS1aiKXTRgaAgdJYXTBLvkJY4SpV45//C7dRaZM5n",
+	"h1sF5ryp53rsJ5/df9cYqvNM/T1hGm2H1Fy3apWIa1vdfjG79aYBjuwZ2AILdnLyDUCAUO2Qo43MWS6a",
+	"P7L+O2EJU5YSp+UKkUuVzO6qaxHhyBimLknpiYsr+m48cr+TEmHM3YHFQnVQlR40IfcQBBX3RM9hMFWS",
+	"MW7X49NQ5B3cGjRHTXvP3eYhQ4vIjSDzazswQKj/z7l6azoVxRk3XvTdkriHDfW32J9XVEHt6VOs713S",
+	"eispg5RvL4p2iE+yHF/CIXb/PW8llQ+x36UOwP+kVWglrbA4uw7hpGzkrOxMeWROvol/ntR/ftFKGuv6",
+	"wnUwvCOoypXHZ34A4clXJ+7ZG/RzR8vMDmDFq7Rdk7RyszrrPffnTWe99EBEdEXC7IkvYkqISnoPCKy2",
+	"gT7gCUIdwJaagRVe2s2B241INhoJfKDbpfPAF9yOp7cTrlz3q+LV7Yjv9hIunQOzg/nYj9RtvBqS+Q1S",
+	"XW2qSy2c70fTPFfqv0FovMHTjjAenVOHd4xD2QqkCQgTvKqL4dvplqqhfBuVqeWXa6bDbL3b3muj7bZR",
+	"tp/Ycl6l+Xmm9a9jWz9zUZs7yizlQEPcZxmOEdtjKWI6PSfgzhIWLGFprq8cnwLMbRoimhvM91S6mdu/",
+	"CU6hyT6B3LSeC7UukbgbkjTMte2C/M+XUb+hAkawAO3f/OWf/q8dzDUelDbr3LSQ4V51mAvuEOMcdjG0",
+	"SpnEuFnO5lZbSP2zMo/xBPrJW52joHXcBvVcX+02nXW9H+JIOGwJrzT2K9i0BZ9zK2jD34rb3yp+3aPr",
+	"chOwxY5K1UQhxkJeiux25OFWlCyLLC+bSgULzVYWxbriOOKOtuSJmuxaJSUpa2xcyDK0dTdq8noaa+28",
+	"/SPnBeJHGaixSXXXoOm4hcON8R2u9gn8ImLFeMQOEiqZ+4DnuQ+49O9vA+te95GgXjXO8m2gdR57kGDv",
+	"c6ps8Mh2MDsJxc3XA9AM5kadW5aOC2nlmOcjtPClIAH7/dDZBNFXWyJfy3gzrhJg/uzvf354v3vAfBmf",
+	"d3/i8N1sHXPpejTe2UerMqrb9MNPQsKWuze/DikWooDsVCwp0sdPJwrsV9MlzHFvDfBsHQx6/XCcbMWo",
+	"EGTAo4HBPO4Mg5nrBin/2cnv2VcHLPSKtlrC7vfu//Tjv//j3tnurXy3tpWmXZ2w/f7tWjLyYsab2YOw",
+	"+v/+j3hogo4Wz0s1FC3FekYYIAG39pbgGFGp7UXbMyj0BZZpjkz79390MYAK1FIu8q5Tj52zEYifytbH",
+	"YravpnI8pRrdOaDo6DPIbLHKFmQtWr+VM5esIwqr+3kj5uZzfSEbEdoIZveeAf9ulx0nUlB67aRXTW7U",
+	"TL4Izjg78Sge4vNG5OR6kqCdAaydxweZW2JnhpWhYCKTkRH5ZFRGmjc7ScA+sMVCrARhYh2GQSVdqoQC",
+	"TAH8qiuWwhD+l4TNM+k0M6eNKoctslg0o/rEoto27rY3g7RE84gMpCuyAzxLXOuK30ctPBNauJCXQq2B",
+	"SakhYq5dM5RFUu+7liaUsbq+frOQrDDU6PTZMeaw14P6Z1tqLOmsPKEuBxTG41CJS1SE1GXEL8RoqhdN",
+	"0ShfBtbCEaJMO79xqHlnvObdoEEchO+qH49z3qQuATDnRFdtQhWL1LYOerfxRYtKjfR8qyi4UPql+34N",
+	"PHLkuRavyU1xvb4XtdjZcNKTmCSun8vm/VGLnyXy2HQf0P67RSwhHY7tCRI1dCPWva92fV9vqUq7xfVC",
+	"ovZ2t0AMYz4vpBrLOXduDnNtkE8ATTgypzOeCef1jATzfFn61iXo8uIdoq1XnIdsWTi4AWu4PwoxWRhh",
+	"mFmMp6VPNbpdHB4cdHrsTFgmbaBxhVjF7gdYfnddAZ11iV6sBmoCHjR3fzntojKuXlzb8XuxtvFNsiYv",
+	"SL/36EGv4Ra62R1oq9umdP5wSE2ogi0WivhCriCYs6snXcRiWIF8HirKcNpOg8u1S7UU4znjspKjKQJW",
+	"t8t7rVMDdY5g2m91W7kTWL+0XkT1bvxw99sNJL1cqwvnWht76/lJpRhTr9EGTTZJN+/rVfv5w88PG1Or",
+	"3uqK3F4xteHuXLe7wOQLiiGaEKQ9/IoDEXHEAEjLuYhRibwBoEpf1jChP9O968hw8+XbdMdutM688OtW",
+	"y6FPeuaULdlv2Xmf/Yad7//04/URSyvIWu69exXiktOhqpaDfw9++vH6p/9KyMyfH372WfcADuKXK/iW",
+	"bdAJqnNRXPzlH/7zC16AJ3tmExIYMHZYZJ0E5TKKEVRDtRKEO2Dp4Tyn7mXsN6B4gjiwrLPX3oef13vj",
+	"zp/OO0kFCWqo/sgTdp6wccKyN0csfbBFFX+6SFhULGEXb46GioP8Emt6GLcI0ZIwh3PvMFdq2qgxGy76",
+	"/fuC9QnKVapJTtJsws4r71x+AudrD14P5DfiLkhOH49ZxgoJxyAZKvdMsAz2NWCgHDG05RdS+CzS59Bx",
+	"JS4oOBKq5a4CqnmoMjmZoD8/JiLrJOyi2i+wPcyEBZD9C/Zbtu9n4vDVc0wCMNdXwm0s/tOP1386d/MH",
+	"Ey6u5yPD7YKmI3zU3sepF39q/+Wf/vn8px+vOxD/v6bUSE8mRlgqvIQtuKYGv2zL/pvGjUg8EoX8++Nk",
+	"EGQVnGPS/b3lnw7SJLh2YjQ9jQ6yAcwEVzXvTKq+lbg/3BlqJa1wcAB5eQ7n9wH+FysjeIxogCsP3Ii3",
+	"vbRgdM99V6JfL3138NlXUZ/wwVO9KF49D7/kpSh/vXIdxR9PrudncWdXH750/X2XtCKIilWxlBuCuyV4",
+	"ijTKl4GQbROZW1GYxANAlc6kkW6ZcCJyaaxL4cMmiwJvCPiQFui9IaObghNezgUykk1XlGYF9xY/bx0/",
+	"Qpe6cOnRhQVXFEJZYbKi9H9Ma350+wef38KR7n9EfdX+wcNmhdUr5HN3BVO5ReRdJg2okNdYaf3b2wTz",
+	"wRzM5nYNxMNkkeejtWJ6rsdv1/Up9/rClVKFzm/CQ9go6VHNcd98nauDCn2MpvDGwC1a1VuItnOh57sA",
+	"NWA7N47X1bq+p7cTbCtLGx2UAydORQelYeHd4m7ErsWPnDsxoFLVG3rwWbWhfrLNZgn6MmDWjG15KE8k",
+	"q9/xrovzLVBImUkljSXqsiU8v87Fcagafp2W1cPPr46Pyxbw62orFdn0cJNkipGJ3y2Ee22Lhdhlr4dp",
+	"bdwZdX+10gX7A+M+lQ4Zpjmmai4KJhSwPcHGh/sXYjY8B56i7QckkN2wc2PHKTfiG49X1N8bsJzK2rcJ",
+	"s1EuklNEPio9lqKvCyGdAE+ELi7u56CW8Bj9nPH7OFAJOE0ohM98xBKxYJApOKgB2qm4tgWfa4zWR68W",
+	"IyxxBkLCxQ5xONSdXFP2Mv/ru3QQNVyaGHXRaAk8YqnnhCFQiJd8MYYtMY8fBd/pUaG1BbnUD1rV4BhD",
+	"5mfv8QseQgVX4ykq76viwhFL+excXiz0wmDN6SDkJYkRHh3UdAWSCqtDnQdaB6KkXJ2joUoXynnWjLzP",
+	"EnW2FEjqblpQihY0+BVh1jic1fIRtlfloTuDyqiGSpoAPRdyqvjF1oXfC2GrlKI50j8+ngqTDJXRq7NL",
+	"cyhrGbuibdlKWtGuRCa63EetpBW2TPQ3WB79osOftVWGKiurhMSvPr2h4TBVoYXyyXZkPKJ/UP7UdaJ8",
+	"fAwNrT5+Uh1qrZrnLx83Pfyq8vDLchqih/pUa/tMNXTEz8spTUv55ms/Qc/K+akN4DiaqFq3yldvKqTr",
+	"dtzCX6eb5ibnzIar4tZOtncDtbkp59hUrGYbAyXwtvlAUFG6PWoEfX8r7AgqujtQBKUbvs1OOcWSTRbr",
+	"NTgWTQiPo5o3HhatTUR9cDULnB/B1lyE6/jOJ3GTa1cVbIvU3niHVzEnVlL34t3h5P4AD+bs894FC55c",
+	"6eartF2/hnfOJRB7bW6xpbdMTxL5B7dp67C0yselnVuwl+vylcjm+EsZeYJvVOX776IyEXBeoxtb6VEN",
+	"7g363HKpAmB6OpEiz0XRDIc+E1yNdgzP9I6YTa4E8A1w9SGCOkLV5gQsld2cX6SW3XOVzQYO5xoZytLo",
+	"hd82uskn7hT4/RUhCsNm97zpe6FxyawBiqs5Synd4x58O8xmfTGi87C6FTaTFXdz7kZW/pp8pjd7Sr8q",
+	"xJz7ED4x3zVgXDGey+8W2vrNNOeFUJaM74s5GLU5wY2xS50vZiJhgo+n7gcQx9nzErHR6lwUiLD7079A",
+	"7OXYcgIJbQBSdO2OZu8V4OdrsTp3Na0W2pj7FMf2np2gOm7ZhdqSR9OyMrqot7VGm3eGPs/FrAF47ukJ",
+	"e3T44CGb0xeMHCHN6hqtcylGpOYrdPQstIfsdNcn8tukeyddXrP32ZrELE81QkLxXGZMgkXT7Tc9mZCl",
+	"lwGJJ3dSl/x/W5hYGOpTKNx4k6kSJXOVGXWjYnNup43DcR84nnNtBaD0+buuk0m6zzJwUNAMltj5Q5JE",
+	"DsPk7EG/vzYF/sI0t/P7169fMfoA88JUcHceVJLuHvYbk0tZaZvSsJ5NdWGZITS/QCvc/oFaGrtKD1YV",
+	"R1+fPvMmjaWP0Ygr89f5olAD5NXeCjEXxcB9M3A7JO21qjrVm0Jh8a0fY4R8tsETuLJxBt9veUBwzdFd",
+	"1bLzQvC3zTkKUF8kiubytS0/YJz97dnLL9krKsSksppQxXW2TFi6h0jge2TfVfiPcL/GQK3do3So4Gye",
+	"nH2DLG5KX0j3duCK85lwnztjb0AcJkXKTSHHNK6bZrZEbt5RKrhsRno9+Ya1f9Vp5IuakHgR78R9bJdz",
+	"jMdQEVvnoYosuy4liKLiGWLYJOd2V+b/+jYpmK9biR9403R+teA58h5nwt4maCp2cPvO14VEhNDlMdPG",
+	"kaPGiI00sQzljtLxVxSXcgwgEs5PpiH+khRv+RY80SK3YUx4ZXhY/luUlWYExrJFIW5RGKwfW4J11wu/",
+	"a1ioU1/TLqkRYukzKXewU4xaXdGYevU4RoZiAqBSTc4JBSNORhihZ1uhMiZtpyYwF7jTff6P6oreJmj2",
+	"DgNDm44CZVwUZlfEAVBON/g8ASHoXhUS1dtAMvEBeBKm7GoqcyIIGbf8nBucKU4Tfr5ELySPxMPaWAkc",
+	"JwNwXg/6911Ks1Nhi2X3GAS3uhti2biTn7DhHXw6YDK+deX975dYRQkIaNZxLTzz0q1h7am2flymw3J+",
+	"0XX8PiKvZAa9Ei40s9oHAE7kxaLgt8gK6VDDyoW8Edl/FbZrF8Su0NBmpC5ypFuz5yJg+Z0Nj0Uhia7t",
+	"kM1iRyUn+WcJNb49IsfEM0HVrYJcybzOlRAru4ZbrgLoN7C4umh8VVsW6lD4vlbzNqCixIWOeb4m2mKh",
+	"FPhkUjqtDX1d/8V69Wu15Epjceeqy5eEHdO8E3PBDeqom6gZWPPRoZ7nMfly5rTYEfYIKB3UBZ4kKdNo",
+	"+7NMmqHy8OLIGRCeYmkkJbcUn0WqjJk/YimQu6nIs3So/N1SclIeqDxxNSRsoSbSUjipLphZzEVhROaC",
+	"V/lQbdVszw/Dg2+6BOkYc1glttHcEN67G3wrafmeb01QsMVXlQrdw9O4Xvfs21A9rmCN+u12TKUaLcwG",
+	"F2gi1kioYT2VvloD9cAvRkaMtcrW+JpPeEEbgp2LqQwZkiTIiBg05qPeubEUC1YNEF2ot0pfrcm0sFFr",
+	"U6KSrsKMSssuhCXVPo60vVCIDAYznsC9RVH3JDotlMsoFO7shNIu8s4a2oVr0+CV6GCW4Orrdj030MUr",
+	"e1Hkjmnbr0jkDu5uWxxc33bil7j5+JNR/xsfhL6jIEAhydzRb1hOZc2AXf/v/1MfZhI1p3ACZXR67xkM",
+	"WO7EWN3wd6w4ZP/6ozuQQ8VneqEsPMmKJZsU3LkyU9YjS/lOy0sEOF+oP2EFmYgTjz2QrwBpDVVZBj6q",
+	"BYybpMIpB77Y5/d6dkYbNeTa8mRqqDxcnzcbhWZA0Dcu10wNsmZFsuLjcSEyafF9Ap0F/SjCoqsMA4vG",
+	"Gl1YCwOen9EYXZQRkWYTcJdB4GhMyDW26zJd3c5cS3Hco7Vg+bR2iI09CXHG24GD1nEGtigVjCUNnp7Q",
+	"+K15nLXun3oeM5f/+l9aSetff9wWKxf79GKRWznPl63EPXgsL2VGHgvrcxD4Y7yrusD5z/m4eGfh1fOt",
+	"2KKgANjeQt0gONdrDUdmp6Uugt14m49LfKdtvl7kzYttxXXzcqxdp+v+lm1e90fbGeqv+63y63Jf189i",
+	"08kLkxbW3c+LG5ob+uqSNOEkRJvhBmN/7Fuy6gpZ+rQHvPi2i7UKHnRkvCQVxVgXBXVljXW9ntMh/F90",
+	"q3ZX360syWlsqasn6Sltux7BsQkIfwfJtvTU3MHVBzu5yO2TS3GrLGvjKfotIF4Y7Q1EIULek1IQuSiK",
+	"K0rC+fzZizOmhMgQepaPLQCiY4ZMB07LGbGGbMzzfMBs4ByCMdCbcROG5l8KhPHcQZlRM2T9cMWDhtXh",
+	"CvhgTVA+wX06VPQhyn6EI0/VuEG1EeuGYElo1J2jUgLAoaZwmWcsJS4ydXVIvFSVvWd6LP3dk9ds73J/",
+	"j6o1e9/THyOZvUtLv0z0XoV4QI7BpMhNGGSoG2/kO05qtEs9Y+5EgptJOG6xE/x+l8RzjYhIO+so1iWR",
+	"eb3q1LM+kcyq8t/FmnlmdTWxzJaeZWvccF7HGxC/IfFHsZTcE2hm012oxCK3a91u7sa/ZmWTrIAVU+SI",
+	"s5SJER2n7UXgcjeFiqKHqKA48VWSL/2lBI8q06y6eD11pMrJ+E5JjWDVrqvp9vmpK2qShvzUN6SRicjJ",
+	"zYtZaanlKd7N5WJJLnBC7jyF3SqV/ewwvg0f9fsP9x89Onhw+PCw/+jR/k0eSDum2MINPVrj+mXEd5tF",
+	"YzQ6CMBMlAoWzQhDVwYJNEiBK4fxvYe36mC1CwnbjleDYbuc5Q5jmQhufaesbPI4dVBY3XiSo1xgGz03",
+	"a95Y1dxdkXPVJjetOo3w9G4Nq1e9KxqPKxouHJoUJxgHRyhppQcsLRaqR6eXcAAXCvfDUNEcmE7ioehN",
+	"j2dZytruF+NZRpoC7iDoU0qt6lImQoQHPYjVhClacOh5gBOpBeSWXQpLgW37NeiFNIur9YeHofJt8y7C",
+	"/Jwu1IlvGB/Q9WGOs8w/KbMxwq9vqk3jszKP2ZuwUE+FyD5COBQu6q4yI/G0HyQL/ubA4cYAYWQc8WLR",
+	"JbXq3ejy4EZ+28T50YXfFGiFSssJ6ih1ITIPQktHaeBoZ93TN3Gx50oTPEbqOCP4m431Iqc8lefCoY7C",
+	"CVLajnzME6n928jnkk3CoedklVRORyytEY6gYF9CPH4qzUgvrJGZGF1JlekrqjSkqAlaOBRJnK0Uo8Fc",
+	"MYrVDrmOqJKjiO0H/s4r6BHmJTXgY6XGYuQfp0PVLnH2pU84wPyHVB4zPZX1HjEjRFlZ3Tb7VxNFhJXj",
+	"uuOf1SVuoXtEdYVaScsPerSz5QNmrhKHRI8qMUju5FcnKSpKsUeVB1+FB1HMkXtQizdyDdZijehpU5xR",
+	"1ME4xihqfvXxl/rETaj/bb+qzio9f3b2kqb2Wz+z9PzMzW/N8lNVou0aLJHV45v3P7sxvBkde2rFYufA",
+	"dYZMaMyXXk/STsXYBUN/4KunVBNuKhGLYw32FXx8I6n22GY7WlYcvFAmxpIwzOYhcehY1E2h8GkT6PEW",
+	"EJ6ucHHPEJpnM2TnLngMrsc3X+fQ8GP/9QY73ZcRxHMzUuUqdEZtsUKnIhb6hnSbtf7F4fVkzw7Zsrem",
+	"dVDhcShMv09dFe/KB7cJQryLWX/fnI1RBkngs2mgNYQ2n30JspaDDT5dRewNQ2lclUUuvpH6dp4zTiRa",
+	"o5MJiVEudX7pjZZyJnbU2XrRd9WegWNoiMrKjQjM5X73wLArXiipLhLCvvWvqAIyIDbb4L2F4oYYVFvo",
+	"HOZxl4xywQKAgwjlkmhSm5dL7ZyVEIQ6bhzz2rsjzehOWMYOXVI2OyTdyiJ6M9wvoRdeVUa+3eBo424v",
+	"Ry0UMSMNm9Q3uCbI1sIFBGUq/fXTpWLM3r8nIjs2l9uSx4V6iq2Dh1grKX+fnH2D5PG2ie23D8IqtZ27",
+	"ltkhFb5eC+l0m3tu9zDy00UUP97gGEkKHw+UadZqVquAmibsCFjQrI7tTr7A2/srVpA/txpWSEl3E6jJ",
+	"bpnyK5qxsHThoDRiAsfdL9cnnNObOEav1fkYfHBJOhqsgPAOIWlCbrnk/SnMtqe4adW2n0Bs/SMkBttB",
+	"E34bwIBdoQI2Z9EpY/M35BI+Xdw2sdpt7uWPSaljwrupVMDcex/iGnCu62b7FUrnJPttanafhrq3odYn",
+	"GJPjeJz1ZPueCS8N5X6ZcdCloR8ipCpHA7f/pBvKd3rsCQT5hFyUPNR9z5RucOhjGTK+sjS0BQos2CGp",
+	"10v60qSOrD2TlhgODGMWGXlJgsrJIWIhcPSScQtgQ+V+JOVmWcx5/UIJF8GMBUVGPnjYR4QZCrDObKFy",
+	"YcxqCgNpy4wFqO7bapvUNnPYIg/6W+Cg1W7HVcJNCGIR4cbRIzDK1iTcX6cN+/jBbkAz4ardcLGWA1pL",
+	"kgICykfRDO3Ad1R0RA1i3w720hWZy9nytkRPKTm7u0PrWe9ksb+OVd0mM3u2xlAeuVaF2d+ivpsZvqZc",
+	"ctHoNk7neyYD/7DJ+bJiOfI+0auL9LhYAq22oogcp633R2aI9Z4Vyy5hEzNM/HQbRPf9tUAH5M/9/oAJ",
+	"VE/whtx4mOCbW2BwvH/i8WRdUs8VwxWVgQsTY2SdeSw4yqPKCd6moUdppF6rp9NBIZpgFWuNBe1RnB/6",
+	"NmAjwc2A3PEbDI/4HJw0Dfq3ewQQqVhaKYprmHYwFJjyAkb4IWm82ukRZsiA2hTBMu6wN1f20WontttI",
+	"75OacoVru4UhoGqDNM0epcSFhbz8paXzvODjtwJxIpc+m0E1Fsqw9rOTb/ZOTr4pDaqOp3rU/8s//Of9",
+	"/T77FYTCnO95ZrUM2u4c0WbkkLoco6pM4tk26g0z0lssMLQnZFRATjCyxZbA3KSShogGVwW+UXqo9FyA",
+	"ZrQSQobxXW3KegeLmAsr0g7GV+Qam9JKJJWWrNY9doxdxq4O1X6fBU8RlTEeysI3vHBMIeSwG+vZTCs2",
+	"R3I6JvXsk1fH7KDf733eReUYnUrTIR6WI6jDeBqDaALldQffOQKWduMmd1A/rgalkY7s01cSXdwg2wwi",
+	"gS8UDENkfhdEdmtgfr23SqMyudxxW/NCITN/A9d4sCM+YRhxpSdNZ6zCge2qbHYbrCHPfmm3EMoLHh9G",
+	"J72TH+8NGHfHjXhe1ejJC34pMA4THVtRuEvRd2t3YLrbALbHfr7bXbHEHTferj4vS92Hd4zY/oWe9e7Q",
+	"VTic3t+6dj+Ea3CEyuedg1XGIr8cXTR63ngEv9I5aAf0vhtciLMbvJhlhi7MJOBj7MBECM+WyDt20fQ8",
+	"TkgPdSNZOjsB4v0hnaHfFy1w84irEcm/LB/juxDY7tyreCuNmmfMnNPJezv/Vtzeb7D0xbE0cKApjh5W",
+	"18c/Yy3b2wA9O1tt8OuTr18gKo9XALqb5Z5pyLidUJA7SyuvAKS7Oi8pEaQA/I3skVQ3ez3ezlm5qimK",
+	"pfftACJ3gZ5c59O86pldO5INq791usiYf/lr1HBtOo2NoNM7KbWodXM7m8Su6vvn3Iob9Pd3g7B9NtYE",
+	"dhd5kZtBidyDUzOADR7MXoPgR465O7a0qmNDpwtlPKoPPaAGTql+fISWJxP8xfHZMTUE/a3Syp1dOjyj",
+	"MM855gQggkdmB1d1A/wXik23R6Ap8fYasPRIem5O7bMm0rfZJSZUtRG/rn5oUJz8ECOTm6O1VmeCG7Mu",
+	"UdENs+SUBR5db9eYc6QC0ey5WBjXoVr9u00uye4bYovcdViBhHGl8IWTl49Yv+rBsDoLStvdUjYlLafE",
+	"2LF7rtSO3btpCdcylIGRbIa7CX7enntEN+YtaZI78VW8mxUX55jqlC2sokeGDbQSJOUnutwRfr3CAUxK",
+	"KtNIp+XFjH/BjVwjrP37P/q1enbye/bVQfv0oOOwQ9jzl4/Zb9n93v2ffvz3f9w7Q67p+cuvIJ1hnx5B",
+	"JkOMXh+ZjDLcsLPHpWNuiSip9AzBURCer4253OxUGzFUqAzNvCnUgfRBDDOB/Y3Q6kfVm72//NP/cuWj",
+	"urFyqBsjNujrVQjAxHeqksCQydkcQy4I7a8tIOh/WGJ5GZkteA7FHHIPlYTcMSz1r8sxRwWSoSpnoeym",
+	"niCH6noAeW0WVrvAEK+IHLByLiPAqGKhEIQlnUGohA/QNyhGz3QhHHxAGbAvcpjXlfmrBnNA+7B3XIOY",
+	"TK3yPd3ifqDbHoyw246p/vLBF9DSWVZ59hybhEynee3NqWv6jAIFzuSF4tbhWe6WT8EKZcG9wN/D6zN0",
+	"F8ga3MPs2mhTd6WZsTLPcQ3QuXLKzZqc1745M+UHDz5bbe3s98fdgwefsfZUXJe4rVxphWCsiCynJ1Fn",
+	"0I1UXqjGkKyqp/qae3QbaXR9Or8ZV3IijF2jq3tVSGWdmiRBfFk0AX39+oQM9hpGBQIfKldIpz5dzLhC",
+	"nCgghwxjBMxUX5l13qqu2irWoWck0UXbwZeh7CTPZS7tcvv9SvvqBTVSco+1F8dlQ6tlqg1jaDfOy/rk",
+	"ihv1ILDwI5lteuuRplfe02ZplN2/fn2yvTQe6hnhIq7xoeQzgjnhynq7X87P7xnyOv8zWi0Afv3+/fuP",
+	"SuMIPL9nGKVr9dBXDl4DCaJWgmqQigJoydSotCUbPTz/+vXJwKGxQZHKRmW8hI/imSE0/igfKGQC/f7w",
+	"XZf+OCj/eO3/GKz80f6PP/zxN903K887jblDofcjGGfjIsFMZAW/4vkmhZj/Su2kmy5LnS9vlgBk1qru",
+	"qXj/JSFDYWU/lycy3m6rWyaehRXSmKyQ5jqxWcPM0NG7Rf5O48vuoDfwRW700Igq39jv9w+Nec8QntAT",
+	"H0BTRvOsvIoCe3bLCboVxd6xv27m1tLp6vtArt/skKI02USnq0lUbwwXDCfHt13OSuMGiQwBd5WlbFsk",
+	"m0ipjbzfR3RsKlWl1PKqrnOzc0LVx+8j+DetTOoNgUrRx/8Hcc9JQtC8Bsb6Shry2Alb66NmFLqrDfbC",
+	"+e/u7FG+S9AW3bzrw7Y2n/Zs3QtKzbUbSuVtrOLies4xVn+hxqKwXCq73LI5cl42OzXn9YHb+AD75fsD",
+	"lNlI53LdjHc4L/NO7ZLEsJKrqkGR5h26dxp5KAQak3W2VEQMqC9FdRsu2mj97+zhP6X+BYqQ1k4E2Lpo",
+	"/Fs6CJgFOiE0+4eEzFlbbpC7xwt18fxOZbtis/M4oo0zSdskGmJlB1c3y/ZGtKa9WuGgHCB6iJUgTPXx",
+	"25HRpa3QZVVGQEvc5VumTnB1nvpWWkl4dgaNRL+fU70Nfb4FW14J/NjJsd83eiOXUTaxzbzfMnaopM3b",
+	"3erxVbdyrZ/6e9gFbfgTDw6F/u8ypsS6OA4fC3LP9OIrYRfuZuWuuK2r6rrLoMH/qaQ29wzz5VhUjn3t",
+	"wDpr/bsFkPrPdtHcwabAySqPt8sTjECeYStIw9orJIBBCpVOL7reqsJM8sGuu9h58kNdfttv7/hGunEG",
+	"KjfUTbu2kgiSJ6gTEzwDHu9rvELf3mKv+jtvSw9D+PoDUZJwyW6cB/IlPCozZblMavVWbu8Bv/EKj452",
+	"E5l/7SCua9AVhRDMimsbJXA8csD2ttA5G095wcdWFECaxmJumeXnCculch6CHDGBi0LyC8EKYReFcjkP",
+	"quqCqqIh1kb+aTi87ve78N/P4T9fwH9O4D9P4OH+0+Hw+uHTN79pVDS+BvHhltHWt+Dxb4NgsMbwGH0Q",
+	"CULSUJIKZnWIwMd9pJgDAytBfra3V6/VwxtwEtmB9YDPmxrAPjWP04hxIWyPnU31lWJobgQR9IhJy8Zc",
+	"OUg6zD2FjttbeqFRi4nHvXcDqXCbjccAit2SxQGn/BHaAwudr6EH6NkjjcX4Y7rPczmGoU61HAvMwWIM",
+	"ZtygBQdffjCQYphM6UNE5yp2G2Jtr1g4PDgIuNzSdnrsWcjhg3HCVAzm1+F68EI4G56v4nxJlma9KLpi",
+	"KQxlr1wNkTXCGkYDNyKfjKiVdeEGO+146eCqMI0YdBRH7zZ7xijgol2WYecS02N2eiwQdfzYVYMcUjSB",
+	"qFKQlOkOVwVIfnSCmDRhOg77913DqLSJenrPoO4Hu3TYP1z/VbFQTBc09z32XPBLUV4CtcPL2tihxC1a",
+	"4ryrzPbe3uvCj+8fbPJva45F9sThDli0b6caJgFB5TGSZWFESdyO0M6pvJ85ueo7fRxfZNIyW3CZ45Wr",
+	"r1RTotRvp3pWVsgA+FBdwEYasJRMXi6jKeqffUpTXbC0XKzVnKe9oXpMPgjkzlB+W9FS+b1Auy4t91o6",
+	"VNQfnqPJT+Ru2NQlB5zld51ZkEv9UK3ck8ndUehyTxzuuiWaM4u4jjQS1UKou1Tdn3MjcpdebSOQGbT7",
+	"hf/4lsBOVQCLlb6QK9CWmFzP6ePYqawhk7bVDBIcYzZ1SaQuI78waZiFMQEycuStxfyEJJ62l2kZSIW1",
+	"GzsQkvtuNcGvwtc+hfH225EqgDJN/bDFQo0951a7L4qFKLXwhFLKMPJvRuneuGL7Sb/f9zMCBBrkPPxe",
+	"55kw1n2AWBgwx83X1qXHotsFIySGsLsxer2CmhAUbeUihFmNdn7YeJUOxlMWOcJt8r6unpH3gNt7L+i8",
+	"GUz2jtEYazweTcNuOXNxqt4mk4lLiVPG2or95Z/+me2vS3EbjtaucXNG5GJNyD7kykMfT1d1OLQCo1C1",
+	"EVswuThjOFqYiRilL2577Yq/io+4c7CDxnKNTg7rwvDCpmTcUSKKRTUxMJyvBBalAJmw5iqXtIqR+W7B",
+	"KUdnrrd1nqt2/My1Un36LGqz+ibymFt5dRZ6U33xXJN7XUSmPgJk0q5pUgTQ+GYyWXHfW+R+k4USBGou",
+	"fQqU9iRAVfrsmzH9nEkK7MaPTWcdmz+K7+fVD26Hk7VexRL2pM/k0hwTS3n6lIC70+UGnUibwBkPG3Xn",
+	"6Nhd4bvq10kTGACuEkGphm89Zmm0WFvLAjU80M0x2VGYViUqy9t7QubjEmqs3H7Vxa+MtYkQ4f6NT8Vi",
+	"IbNVVzTenRx3n775/vN33fjn4S4/9w/eNaqHvm4MqjtmGFaHDsmgREuY6F30WDq72HsO0XIL9+8f5/PZ",
+	"m7SmznIi1hpl1v+p+39+8/1+cn9Nf77hheRqLCAzd75rUnjMHb6/Z/50kCYuAxfVxiYLNY7DDoL7w9nj",
+	"AQP9IEvn+koUkCTDtK87EP7c/+nHGb9uXyfsejSTqvOn8T7J0PgTqzEznucVr3LKHDBUFS+CI9cE7Ape",
+	"gKs1azuqAtoIUMfv7ff6vX4nbp79ho33f/rxuhEsYdvseuP9LT9cEz1TOx4+mQuk4hvvN27qb0qKUF0e",
+	"AkMmqsTVMkIeI5wMR5Oct8jarAzxRTvnBo7ipBo1s+kKdb17RQXdr6dYnvpeZg/5CBfdenyE2zhnvS9S",
+	"wVYZydaHZZUZuUfzpvX/1WOMC+n/9GN7gqoe4Dtd2Ednz/2x6/2DNTVBAkbTR7rTcw7pltdfjKzQ2kZI",
+	"1EQgdu3P9jO5jdUw3o9buKaAQNQ893Cx/vCrxz+QqrLUb/oEcCG3IEnUW3pwbAqs2zZ0rmkS7yzmvoT+",
+	"XuEKXZpEnLMS6wezDRuHqrGVmj1iGBxxvNmRzG/b1QDA6hGKlzSKGnRnMEIor7IqW/qTxJvr48HxOk1u",
+	"yJ3XKBzO4H5wX3qggBqiwLnABFpwgZI3XIOpNBKKL2uUfdtTt7LotdxW9eHcoGxYOdCrt6RU0kqepwhZ",
+	"Rcl7xlpZqRZSXaSsfQJPYzN/3KP4cnQV0U505be/JUOVz0I1lQ0TVVkb1y18fG6zkeJhb69/qa7tDcJA",
+	"tYkdlvZO4IXXAGsEHc4VB7rNzWI3JP3N4EpfujDMymcJIzsA6wf34BJlA4SEW+Ep3pCE+L3vx4/qR7wN",
+	"0feuhNEyN22kbzEC9ISrTGYuQHmXTZRdSiPWoBnhOISPLR1PtTbrsNFIDbexGheKy8BC2FzJjF+7cFEK",
+	"a4XgnmKNFiPnxYUwluEnpVnJ8tzFxGLUF9bGCN9toTLU7EjDxn62Yg7PIZopbSPRYScFq7aNzMOS8bJF",
+	"bMO8lfM5CS90TTO41o+YmM3tMnZ0bzJgLWYjfg6e/6tt/dv/+sOvTp/84KcDeNjumOfjBaYIC7TArDC2",
+	"Tb3bdfghGPqmY/Ft+LB+LMoqKuNcuzPCvkvCRnbLsP6kNOIMPBfc2C4pWY3bQJDHen/v+k/93oOU/eUf",
+	"/p/wa/mng9S9rsRBAIPMhwqVAsRj1PGEUEXotAjt43wmZMaZsIznvYT9bW+oTqaFnnGrL4oe+4I9fHjI",
+	"2gf9/kGHHew/6PS8osL3DRrc3wPh/6f/Sp7WfKhW9ReRcuIaFBK0sRkfF9oYOh2YoTzXF238NVRnjzsB",
+	"8Q8eV4bRSVyGRxgvlYfIyyvFzh4fufBJPlTlftITTz7QmIQ7juJ2gw7EnVEeO0oAUnoadsNI4zqZXj1i",
+	"3c2+6flGHI2iEP5oV/tQ0aCBMYsZ9I2fo6+zYN4vmyEGkoeHH6q1R4jxmUYbozYYV0pIUUpXSA7Y1iB+",
+	"nys25fmkiUz12BOcDpItfbZ2nufloTRMqjAdo/JxmjAEPqgH10zkNQZ9mBKfAHAVcHOO9GQ0E1ylrA0L",
+	"QComNgP1mSG/zgH7hhftJWybf//Hn/7rTz/+8P/98Yc/tQ/+7b91EvZv/42mBU0WMJxc0b5hsG20YrmC",
+	"z5GcOcpCnCfMKeWlLdcvYdKKAqcVXjHOPCoCKwTcFFG+TT8x//bfCEJ0qq88wRbGyhnWIhVLlVY0qLTT",
+	"Y091wVaH6Y7SUPmzhCe57ClsbmlpW/stfva4CnegKArV0Qf6y/0+wH+X4fnS/abnBv91aAmVJdmS2Q5U",
+	"7EvqQvj9TF2efVfYv6s9W/l90FDoP9SerfxeKVR54MAZwu9XMK6Xkxc4qpjyvpwH/nsnuKQyeamviTma",
+	"kDhy4iXyiczzJkBSEo0NAEJsEabrIU7eJa0qzWmyodYtjdUCSaXpjfeSm53b4CJvmiJw1JpIkWelK23p",
+	"mOvm7YNOWM1HViCyiqfdzdeBEiIj5zV/8VkNSt01l0ubK++9RtTPl1LaupKAW3cBWXqHCj+mXlSxTlga",
+	"jXrAqG6aK+Sn4GMkBpQGpMecmxO7P2Ac7kAX9HSlyyrhYtNKsExcFAL6DGWFyCCLCCzAowfsVwwz1jIz",
+	"58rAEMiVC+8nWK2H/U7wbiqloUiHcZA0bcrVjRZwAm4nce4Wtf1hwqQ3lrw5aNrVvHoM0QVhvCikXZ7B",
+	"SGjE54IXojhe2OnqPk7hsS7kn5EzGrAv8FuSfcfonObd4Rh6kZlBxcctYanTBiGqXZlv3Tuowhfo15hS",
+	"HmW8pShlj9TgPJded/1ou+RN5jB5SOAC2Qq7VEoRU2vnrXfv0Oo80atDwvbBl0oUhOxsYt896Dze+fxc",
+	"F84UEymWAmuUAJtphopXXq8kz0rIkEMZYxzDWUlUzcdgY+ZqLICzzuV4Sci/RsAseXkyIWYbq0rYPNfW",
+	"JA6iOIYONnjyFuqt0ldwa3x17BPKQpVcVTwmh2qofv1rYsxokXxKbm6Jy+39+tfsOPSPSWD3Z/OFjeCy",
+	"iQfVaiIvQOfCxrDsheQeVZQXAarJMDiWiqjHfHGeSzMVGbtYyIyjbzfWVc47TQ6MzTqNC8GlXgCX6hx+",
+	"4YljCM9evkIqNlTzQoxFJrBOrzAFUuvnAtn671z+5Mz7W7rsQE6jSsj6Q0UL6tIIuVkuZZxCzAX3jsnA",
+	"mHltWIqz+zd/w060uhQKnw1Vl8CK6Jpy0eGFYEbxt2I0xlZfS/80QMC0UxJQBywosVIg8Izx/AoXrJDW",
+	"BoAXYjPFNR/bfMmMvA4pQHjOMnmBu5axdnrQP/is27/f7R+87n8+6PcH/X6PNE//Me0M2Ctt7EUhzr56",
+	"7k/JTIJEhZAzJmFGQzV0r+EHmYOfMSXezAQEcOeYnRkU1UPPOF4CMrei6MHUlOonPH++yineL204lt6R",
+	"MSGvWADaLwQD2xEj2mh67FSTOzvs9flcqKyLIlnI4N7mbkvAKWOYkB/PDAtp/KlWkvzJKOSuG8NSmaV7",
+	"gNifkqM4FMm45eekgtdzgzmoGDv404P7rMv2YZbcFI1zKZRN2N/yS36G1IhJRSBuiZseOxUzPz04JZDV",
+	"CbYJEhSZCT4AHxDKm8EZeaxLw1K8SdOQksGhYJXI9dAl+K40gviPjYbTA2xUrDl1lZaJtHzVyi05JPzg",
+	"wRE90BXMQIW/neITDi3HWaVSHTbFVSm7xG2KQ/0S55t2/kQqGNmzJ0+edB8+OGSkljE9Oj0u/GPMi2LJ",
+	"vuRfIo6ywjLLIzwVzm8JlyjTgrRd4loa7DUZ1vFlxZLuSVsC7BerqpUoyYL3ni20th3sPaiFUq8t4MzA",
+	"DlYixxE57oPR3evDBpgjzkQEDGunTazJgCFrkgJHxNhpwKVwVcEkuQwPHFjhPMeNhlI3yf0wf2PCCEK/",
+	"AmzN73K8WgrobWb8RpaGZXpMV2CYM7o3z8WR272GmaleUEUUGiIvlC6EH4ydiiXLNJaFUSYuCUjOrSiY",
+	"w9M3jGeZK0FLj4RQT6Jb2CT+/jSJo+8m8ZocvB190g5QPTAmS9oxYPvMavbZITs+O3n2jOXCWlGYxJE+",
+	"LJ32gO0YwX8G8J9umtCQeIEihRPUqSjsLyxbYu2XpArk76+VRKxtqNlFwEFtURAcL4Rb/szfC2AQMkN1",
+	"zHJprNuNXLGLQl+FnUbBH+30d09eYxo+on7QYf/E3W5pB9PW4bqigmDOL2DmOKyQYpSqazmAyS5oVw6c",
+	"EJCyNnzLjPyzOCLmCzuE9sSK7OQy9iBr3sFjBhM5XhRGFw6ScQ4EQS8MNg+smxLXduQ+qQSmEVdTGCSW",
+	"8HUnidRXGC6BF4PxYR/4MX55RKOgE+EiL6yYmaTaXLlYX4pre0IPO9TpKTcjUFqleA/6737PzQt42Omx",
+	"Pwgx9zMV9oMb628rrVxNZY47sKyUoT/+QkCmGZxLLM0VQxf9NFrIDh1BLB7VOkC9NegScf5d9pwLceRJ",
+	"aTutrL1jA3AHuyONCiUDE63ZXOc58VzQBp64Y/9aGqbn/Dtw8iydeNNX/EL4GTvC3WOnbnvJsWCZRJpJ",
+	"FNwsBCbiwb9IOqU4J7eAmIDnsN/HfY+bnrZ1cLeQhU/G2OYOGhol3FpOI9jN3jOjnscIeduSsU0iBtt0",
+	"0HsBrs1cJOFk4fnALn21gMs5DB4qK8WPmBKOczjF0UmmdT3s9+GKxuxKFHyWfgdVrsYLBa0y0cxACUDA",
+	"Esq60RB1QzlnqIg3h9VOWaEXVjiNwQ5C2bGLIMJoW4FC+lB5DFRqZwAd+YF+sB9wCX8g5sKwHxxr8sNQ",
+	"/dDtdiv/g0KxrMd+qATr/cCIZyPi7wh2UgU3LhXNPhdVB2ohkPCS9DPXVixJsh/Y82cvzog5K9xO+KEi",
+	"C7WVJt6GuKBO6JJnI50cFe0dk8Q1JK7b5R60If0JHsUk8pgCdlcXYxFdWKt5VxOHCyMV4hp7Vo3GVxWM",
+	"2Q8gvhnLJxNcBngIdQbQvKTksmrzahKouORdzDYjZ23gMkt5xwhejKegS7p5Fm47YpL82Q/VCFjoLjLN",
+	"uHrQ2YW5oQmUB0hMw3D0Sg3Q2FBhprRC58JtaS/m8rGFYzFgnqEVRcmPw7QFOB+3h4dKWvb3i+xCoNIR",
+	"d2GlQFJxI4vmONTkJkHaoYJJlpdYlaroIUKN/hC40FxUGPbYKxpnm6RXng9Vxi2nG85PhwthAkrrpxqk",
+	"oZIq+PDS+OAOlUPGDpFRsiCtSBldzNqbwlo7vTDfJSnNkfbjNCLVIZ4HeoWr4FwoxLUVCnb0UDUofgYr",
+	"AdC//jVwt1qJX//a2Z1maJ3LZmTc9uNG/gi6ILIQXU2WuoJosnXpn0zgpOFrr/LIhRWYJHioXs6FOn71",
+	"jHk9mod/84Gf3NHrcuQgKJQqtgH745t0qNrRTKC8qa3TJqDQKwoxaFJ9eeRWNPtLY2Gqj30IRsJmPAdd",
+	"ARxJL2egSfZSQw67EMF82N8/IjFJZlEgtF7AfvTThC3S1/d7LN2bCp7b6Z+B/dyDXbWkP2fCFnJsXHaY",
+	"PT0Xis9lb8lneTpUqHZR2kcwp37WcBY6/gp8guZIf9+hcRJXUaES5NHhg4dsXujzXMxAXpqT1l1qteee",
+	"/ubvDWasIVZuqNJX9Nxbx6SioUqwOSQsxRZM6lQwpHKcTARGipNkgrwyJ4HzXGdOgIKDBD367FF/n95h",
+	"+A9uf4fICx9TZACydSF1ttk72Ksm2GHtdNgatsKSIouC5TtH1PrJ2TdsLPIcz+9eLpUwe46twH+E+zWG",
+	"rJnuEayJSrHC/S7oJTI2ny4NImVDDcipQ9emgmcCpxkf73d8PINr6OGeZ7JT152SQ4T+UNM+XHqV3fHV",
+	"ETdEwkbC0jm304HMSOBKqRODZ5mYzbUVarzs/kEsUZwgBxYnm8+kobShZP2Ipx4rIl2jNN63pCBZzjjO",
+	"fc9ttRf+eDCzVJZfJ+yqQPv2cu6CmZwwEMXYwOE87PePaPN4gAAwq+Z519V2DsJaIfhbwziBIvjE645l",
+	"bnMVknJHNmzPXg4VnLmEQv7p2NIXCdQnkNuU5Ryxt2KJ+ofDgwOg5Q/6fdLcAsEeqmFIlUZHadgK907q",
+	"hJqRzNIjZ7peGMEuoCNWx9qBXMMW/tJxUNKrkkodE1YU4SEQ0ffaZFJYeK4z/buuU4d0n0GgB2fx9AEx",
+	"Q9HQO2CjsgFJ9luMv3Jk4pRb55xs3PXiLgNUJZ4vMNWlnvi+Gdb2sitEyUM/0WzKuGUP+qDlIV3mUYkG",
+	"gX4OpDD01K/GdWJG+weo6TQIv9Hp+VFzZYB3sDqaHqdJiChtwsxiPBaULBfXJ3HSNuVA8KAB3y205f5a",
+	"dIfVqVl86oknr5+yrOATO1T4T1cKO+mC+YPPZbfgVuBkdam06fY/Y21yJSpdFxx3LtUFyLEpTPFzUgw4",
+	"iudciu1UGIL+wBPh7iATFENXMhP5EtmNziCuqOuqwwuP1giy/8g/g8wffXYqZlwqcudFUjhUbhINWnQT",
+	"EkJhr4z1QlmR1csbAc3Qmhq2UFbmzr2FdoY0Th8NpgunCijLv0LbC1JlwoKAp/inOLr6LT1zdXuBrjdU",
+	"r7iz5+Dn+JfbBng8HX57eipssexiks4U+Qjy6MvCSTFD5UVMmmm3ZnRI/Y4JX3slG3EMNEoq7wKYuSd9",
+	"lYPXQUpFmlNklXieB5VLjx2HKa9CBciIdYBW3fzjDOJ5wDw07LWfBjy5IEzMCw39HrBzMZUqY4o5k7lh",
+	"3O0cBHIh2BblTpW0/sCTZhBo/oVQzokGVG3+xJHWn4H3SElqat4kLupNOfRYbIn0wxysdyrSHbK255Y1",
+	"HCBo6cKlqnZsTdf1QxcdILzh11BVlc1Yj7ROXcpmfO5C7/JF4Hwd0ycjswf0yIVOD0oPBxN76P2nf2ap",
+	"94GB+3R/77p86p+AT8Bf/tM/DxU+PKCny9Ua/oN7Uz71T/50ED07QLOt8zUI5Q/So+BrdDjP3ZunelG8",
+	"wjjIB+UzeSlePU+PSu0oxbOm+90D476BQNT9A1Ru7nfvV57ex6cH1W8P6NvT7qFJhyo8Pj3Ex4fd/fjj",
+	"w32quH8d19u/To+IzpsaLov7xmVPWzFiuzrKZGrwRU14p+mPs6ulR8HlYS6cnJv+639xtb1Y5FbO8yVU",
+	"9a8/uoeP5aXMROokjytZuC2EzDHZ/vD00jGQ1oh8gmcHMro6eQ2od8ViAKfDeLWngdWhrLEJS18F1Qc9",
+	"GSo3Sv8B/XoCppwTqBieYZJVOKlgNKybIKZo+4YN77ODe9tMyRyNuWJiRm6VJHugDFahEOZKWuDSLwWe",
+	"NTGDS7tiVsDPeJa5Q4ZVIGAKDxrs84Kr8TRYZjE6JdcXQwzcKPjY59/EG3a/d9Drs3aN+NBt10HxIH31",
+	"8syp4RfK7I3NJdweZGM7XagTc+lnBBh5VCTU1ItkePReeO3UimtL9QAPkrDv6spJLw52erXW09IkQ548",
+	"UV3cONs26n534VVKolq/zol9b7q9my7l5qsWte9bMi7kHDJsxSxgq+NcBtjKbcqiy3SGw248EXgUBvG+",
+	"pw3eo7TYZFjwNqaV08HSOEVmtUzl3NBclUenh11AwW/1RBGj5G4KGoI2xB+jWRJXMmFKX3lB3dnZByzl",
+	"5/pSjLhZzuZWE+ECsKur+BF2RpqRXlgjMzEilBy3Rt5MPvJ53lKChiDufGG93t+bCnEnfisL0QUtCbfy",
+	"HJAgq5c1sQh4R5Oc5XA+oR49ccTLsDYKUCiAr9z3nWjnxnf+lDfc9yCpoUhLhM4ln8qQSYE2L7Rl80KQ",
+	"Bx0WYe3fad9V36zD9Y7NokYIw5S4gkrG2iXwwQq8rPsU6Xsg5TgSIPHeGQZs7OkTEFFTGhKmIff1S8O8",
+	"cul+bx+Ij/P9vd/r9+53euxL4F6lYRwnckB2arAVUU4ofzOk9PaPrxM2xMCFYetNmjBefhpQsckRJN6a",
+	"3oZHGW+RvsMd9kw91cVY9HJu7ChWNadoC0y1Ei8nA/bH78Fp7l3Cvqc++PbfvQlzgLL7mROzgdTgTYjb",
+	"Mke51Ti+UvlLklAec/mWlBcwHTCzM5b6AQ3Q4JbS+YBdzVLEpUtx+qg8cqldKAEMntEzAUS0HqCVomzP",
+	"nCpnQR5GIp+w9sqnA9YHmw43lSEd9A/63f0D2JpE23vsS+3uFcJVEQwuclz+lGTtoImKxO/gqm91dRse",
+	"OX8SR7VxzKCgmtLlkoprJEqp80FAt5sl6b3bqE1xx2xAJqAxz3NvovZaU8ip97snr6HqcLt9L7N3KX2x",
+	"IhN7S3DE/xwFrbWjnp6zps4j13UUlOs32BfIGZ41aP6pQ6uN83Xad6hmxRbhKqkMitanZmff+57+GMFk",
+	"DFAWdd3kqJ7HDsJGu+pVGYRIvb73ffnj3V5kbNo753Y8TQfMwBzxPHhA4D5SrjVc9ITEGO+DB0tStUFh",
+	"88TgdEvvG1OKfmVq3oqfT8JSn0Lb3RS1HOBJlAA8+tslzoZH7hrkKktIve7v6BBOTzEOiHmY0i+RpfXN",
+	"qcQVmwn0CSL9TzOPhmTSlyIMYmIaMzEXaGXWyinkl8J2Bk2r6tJRoh9EZAVH15WUZN6r4OmAB16r0vUN",
+	"imV4FfdY3VPDsVkm8g7AlbkDozNSbvS3wQva2ZTji9I74+3sHQj3DlTvL0207y/mzGqmpHKXcfAlO1+W",
+	"c0R+aN5ZLxznmmlygyWv4x24ohL3yEuMtd3md/6ExOl1orbLbexoH55MmdGFgsfAZ40lehc5IniHPdbG",
+	"ey+QHKHwPAVsCO/t5yZBqonu5XIslOPnjudgOuse9PqJd12BLW6kc2h9/uzkyZdnT8iD2RVsDb53cKqt",
+	"sngraS2K3Hkzm8He3tXVVY/j654uLvZcWbPnasQymEPP5qLq5Ey4TJQKrbXfcx86jUZr0EJmgxCWpugP",
+	"7k098PeFaIJCctv6AIASwQPG2XhR20PCqQRA2y/RW8Gbf3qUmpd2+bOsNWj9Ttjfu6ZqAccH/X6UiRT+",
+	"jM0+f+/85kmGvclXn5ogj/DaOLCbMBsP+v111YR+7T1zanU0V1Wc6VuDP77BYM4ZL5YQaSkvhRIIp2P5",
+	"BUY0hZEbSmbsDWdrJ/lVgb6ZYmEIa11c+93LyB+4Pr9H9ImAmwh12FoBi6iEvdLFW1yiUvNgi4VxaLIr",
+	"a/LC9ezGNUEZc55zWVuNesDCysS7Fj7E1EfTNgvjWLsIsbly7UoAl+4588CtR7waMJnnCwncCsbLbLHt",
+	"XXW7bXvfyR0mOu76/d5+6H7C/sPxi+cfYv5fx8zqpqknG/KWNEaoCvkNF6uPAaApYTKkIU7Yg/79oSqj",
+	"zOurwlJQXqbOxMPJTzyNyFloS2KUB15W6AzOPEDNwDlp8MJthczH6Xk0duok9qRdMQJ0SvtEWbMBEjrT",
+	"qAAjYSlSkw2V0laOhXGBm6DqQ/4J9elp5F8BnQqK9oTJCXgAJy4wldw5cn6x5uyf0qp8QHJ8ijFjwpim",
+	"/YrNM6tpPm+9P6HU/ZtLndHUfq34JZcoSW7c2mXPN2zry/09lDnWbuxf/xoDpQa//vWK0hjUBeSvgizv",
+	"MdTDCg1uX4oi+dAPNmHcspk2tnTihVA5kGfJGyhlBPYKZmq0NfgYl0xmA6zQ5cf2PIp7jZyVC6CgjUzO",
+	"hCr6BgKLcOOF9LdOAAwpcH3rTmKBp0PVJg0JDjgNx1ZmnTjkBfjTamZjDUZPJYqm3XqGDmo4STEyskE0",
+	"eriSWqg/9ekeBi0aQSvZcqO6GL93SXNt1QTAZZVRMN9nhw3Bextrk9m6ug76/a0rw11Rr6gxpnK/Iaby",
+	"zQc8/Lhaz/Xau6pA1OB3Setwm1P/Bc98jCcW2b+5yNeKO99ZkVGhLejEU12cyywTGPF5ePDo5hKvtX7B",
+	"1dL1zvxMdCxQLjoq9ZwJcJNEJx/URLgLI/JG3pQQSbriixaQYT39QnySmVQlIaTXW1HCapToTZSR7Go1",
+	"oojZWYXzdoykQQxjcc5dzhFGsfPlUEE4V/Syx566oIOxnp1L5RA1jr98fMRS4OyQWZDKqQGJ6lmdDlVQ",
+	"DSaUkUWrag96DFzqjYPFLr0LxyE4EPwWBLjuUFxIyzt+RBNGbh8Rc9UZIK4Oawi9GKpqMATonf3fjXEW",
+	"R143GaINhqoa0kAg0DjmStWgUe2VEQUYm4ZNIOs1VK6BMgxghY7DkGlBtyPjFWj87chODG21jmiWIPt3",
+	"VyepOu60yoC1vF2VFcTsdXWWsM3bVRqQq6HC6pl+wotcCmOrByApjw0iVDf0AQ5YpQPbQLettv+c24bW",
+	"xfUNrVt9B22/8pFU61pZvZcDyP6DfgR8cHDjHZ00L1B5evbKIJ7WB73RcYPBEW660iGAFfWqIcHUp8v9",
+	"zi/3EwLslQZ0jNHd7W7fdXd3fON6zNabrnI0A32A+xw94si/dAIms2dk+AxoA1qNRRQhKNSFdKHRGcFG",
+	"0ZOR03OmBKEgjYu4KoSvaY3Ui1O4evvccMTIMvr4I5yvdewyJQ77hR+p/uHNJb7U9inC//6VnsFjWgra",
+	"otIawuxw7k+wF0Ning99Om+tfVjxcqudUe/a7dLtEwoAQfeUQXBesMcoKJdQCdlz58MWSx/SxBANm07m",
+	"Ghn/l3A8bxJocZrMpyP6Czii0dbDOK2xI/r+RLrDta2sWzuhG05kGaYJw5hr815aQYIlN4yjjRy/pdgG",
+	"GzAGoxATj14fsB51IS8Qzdi7eHvv6JBSzmCmXgoYYxKjMlJfzUhPIBwIyoSKwjXrQcnRpcOCd6pUni/p",
+	"sVNXe60bODkZgU4uwy+QKDG/mYfJcYhpbe/8gnUNFaKQIiC4ViKowy240bnwJ0RnRmnAGc9QTdBx9ChM",
+	"j4sXSuekCxgFVxJq0Hmo+EwpGKbuBMahQgc3HlxBgldGEuJu/GjLcHbUd3ovO3T8Nou5KIzAwaMqzHcN",
+	"rLimXk0ljNrN8QDsFC5jSOU9OYZiazr3caq+H05QYnyCgWx2qMg0wVG7gAh7SoSMXuylT5fnDC2O8NOJ",
+	"mnKp0J/33PUf0AoO+48Scvl2W3skzciVdoFZp+gP3j48OHCuLecuJMBxeGXIXrhgob6jAC01VNT9Zye/",
+	"Zy/2+4Aqe3DQSZxKI0KUApQol88AriXnEYIxVyO3q9IB9YF2HOLG0B2OT8MWYy4axQHhusIGg+VSt4/N",
+	"KADsjJS4ggBWy3LBjVeOYxmHT+POAc/h8ZLqAUhg/2bkPTXSQTAAHACunp6UdiRelOcYHRh8tXAKcjhA",
+	"1UH4LmBMh2EOxs9X1XG9kC4pvhlBQFY8jAqWWfRhStNHUFNulcDdJPFL1PHe2a4H1BKoz0aIEzgSKjMj",
+	"JUQ2Iji7dOAGA92tkAGYACjoPY0gm4fzE4HuTeXFFH7TeipeoIkD3mBDMBYsDQ0eOV915pEWqC+uBwnj",
+	"zFC+fpdywUf9Xk2X5JxIfosIAJO6UqVDD05yp4nTIaL+xF8U78nr4IX7hc6WW7A5zl+QbiZK0/nH7z1g",
+	"fOv5fbzpqJhoDQ6oAQIubJ36F+wAJuH5fZTapHJJ4gixmV1Kd9sAhSj4GG4WI+Z2MetRrtpt+KwwNYE7",
+	"quIgurTENT5v/+OIYXGKGOezDvU91+M1GQVecTsNl4krnLC0xjhgErHqEJNNxv//znjM/hY85olWk9wl",
+	"0Tvc36JPr/gy1zx7rfVzXlwIKvdgmwkwizn5Kr4QmeSvl5Qx+fDgYJvCzjcK2NInyoJt+a+Ui35C90kM",
+	"Ea4cknXCuOdK/Z6OuOvvxu9nRSJWep5r25uri63k21vooBBsL9fo0JtiY+byInUje/Xl75ic8QuxSVZ9",
+	"lWv76svffUhpFfuw52ahQWl9LhUnTeA27kE4yk/y6c9+smDjRIJpwmgXfXB9kd/lH+BInZXwToEPDZDR",
+	"M168xSBuB3Eb0somPrHERGYUpHKO3uQI88V8zmA250rkmMz/igQmPBYhZI2T1yT6ww4VQXT5+gM2b4S3",
+	"A7U7O9hNx/vsm49wvM3lxW+ub+Xv9+lA/0IP9Nk3H+dAlzEl2+mbNqp9n62ATMOYKBwAnIlKKM4I3doN",
+	"GGVN8jvkpXhK+D50mstTznwsCeOWpeXztBQfUbzzwibEw9XBSXqsjNF0Mc91vGqulh7U2UUGEgyxTRAQ",
+	"zIFBQYVgMofJcEThqJICc6gcQiZIjkSafOSL4UsPkkIhebkUhrlwy0q6EEDBJRFUF0TIGCdDQY/FBgUC",
+	"YsBcISUKuGsHgWCG6rD/aL1YGU3KzyNYlqvZGvR7jx4kLbdpsAcSevptt98/PKj6nf6x3+sfPEjgv4cP",
+	"36C93QUnYTKAstz91XL79++/efdma/EyjgDeQb68OztC3AFqYp093akZ5wFUMSGfZIc2XGSi6LU+iYKf",
+	"RMEP7ncQw5mhz7BPPBA7EEa0Z8urbsPVVkG1vAtjyikIriYyYLq4b6/jd04JgWkl2L7gqQCedqV1h9Cq",
+	"1ptgXDi343UpU59TUoJ+XCkKbAdPBrpSYF14IXz2GEJkCmoj2IIDwKQn9NgcIjYdtnKZM9c4twmn4YS6",
+	"SyDu9rOzl3vPnpyw/Yf9gwdD9dP/9rC3v987IOsIywo5sXTduHhK490EncXBJ02IkDIR/IeY8KyczXLK",
+	"WLuELUjdd4DTdwZfoJp0Sqm8Vi6z07D44hfsr3Fa2aLr/DZwYaUBleEnRv3nJmTRxvLMOu1cYgSJAvCr",
+	"QAXu2D86kDZdZL15NvkAvhuvA74kNROJJU619fipA+pFoUXVQNcHnu922j6vsS7l5yTEFiaRbhBDlpEo",
+	"ePk/IcworKfM4RVIZpn37x4zY00ox98tKP+LhxAiioRljOVWGivHiUNgg3opBbh7QgpKiIBEgzHy2+tQ",
+	"qJMgzGDlwUSqQqJtz/f7QK+Axszais9E4qKuKdTaG6Byfn7PsD9rJRKYRw503uk9KrDlRk/sFQZ8q6xO",
+	"q+lzR6GG6uz3x13IMeXEKNCl+BQdDvM4GOPRLlox2GOajk1KjlPcJK8eP/1YJNbt+vfWZbpD9Imm/uw0",
+	"9XUF9DtOkfW+MSa7cItY5A7YxBf6ElWK0d1Q9xRhVjPAJi70pXAEuBBkCE2JBNLAjYvrGDsSSsbUQFcR",
+	"flyqOnHosWOsGmmY7wfBlTr9BAaygvNH6kzXvDRAg2NF0CRogHAArMdIC4IgCizX6kIUqyPD0I1HJUA6",
+	"PJgAJekBA20XhYo5aIJCUfqK6KppZuWgnrvg4m6pkfDz3xq03Jq1KnZt0jET6a9nx3VpaPAWqmZCA++S",
+	"HWzaNAs/k8JhrUGbeiWyT0qET0qEj+CVSaePYOqBXL6/Y+aGG6FMnvHBHKQjjvDKZSJVBJVste6U/msz",
+	"ruREGOtSuOBd6QDpkqHCSGhgJas8JD5CRpI5PvKI2NupwCwMcd6JwCuS959PPe44R6L7V9xHgm8MzDsr",
+	"p+0XKXOH/q2LQ0LbfhjEJ/7wFxCRHFaj2Rn7bpjC5L05v2PFEMyg0EqOyz00iGETIN2lYZiHF0+jz8RL",
+	"rAErsW9D8R5LfXueKyyzz9wz5YdHnqfkkE0DE+HTb2FKkhlzX4D8TbBzVJ1T5UGFomDB/TfIoeCRjNiA",
+	"vnWo9jveda0ULuMCvU1W36ih8h0kSPXZwlifUjGaI+JVCVUW1kRkQWnooobJqzxoU503MOFAdF0tYUzH",
+	"LnODn+oELGca+TFdDFUm8WrMGB+jz6VLY3JUplgBThl3H5Qibps+bUSakBfql8asujTVLd7zK9dKWm5R",
+	"w4c8jxNDD1pjXRRibLtTXRjRPefWimLZfRjzvthjvxchN0KZ/9fn9mUzYXdgc8NR/5lcN0P7N94Mn1je",
+	"Tyzvx7n63v/G28DlVvAWP4BbFzG6cStlWGCDFwjicdh0HYf5TaW3v0j+Mu7iJhazMvGfuMyf/6h905xs",
+	"spHj3OCgvKUv1jbcZpRnYuM5Y8+iVJpQbTXpaTQYJ9chejAlcgLmKW6ocxQySQ4V5VshI5ASZcrvc4CQ",
+	"xgy11U65AK2QjdA3TMncg4HXcZ/AgMD0pmGRID22HirvudOpGral9cl1K7nRBgFjb6j2+/2ffpzALtxT",
+	"eoYGDKjiV48ZvmnjK/aXf/pn5l53/HeIIwDcDxh0pgKynP7q8Q/sL//z/70WtlTyOL14kkdW56KAx6P5",
+	"2CKCuTaYaYf80X76l4M++5UPjWNfn7Enr47Z2bfdzw8/Yy+wdvZ5v99/HOu/q+t4tBqhRt3CVBeFzHCO",
+	"Eh9XPVR8PC5EJm2ZLNZHtPk46+My/RZOrdKs0MGo59W+wP9SBtzjxpDBarCg1ylUgbpD7OBQcQubl2xN",
+	"QOxZPYawUrkuXJxApE9HpNIrEAiOaqGHzvRmXCaElYBFunN67FhFzhhN4ZMV8uz9KKgL0lIBYSg145Ji",
+	"tVDGoeg+GjHocEiiiitLICWoxxov9BUZ8FyIGnbeI8DzgnI32oIrQ9F83g8lhnd+5HIKOxkpd8BLPnke",
+	"qeJdlBUOAPAl8Y+R0nbk3yE+vRthGV4KRz1O0R+mqqwkDtAsq6j5IrpvASVqIiGSE/LRYVaCymJHLiJ+",
+	"G0XhuNBm5czhqo6iA4NZJjlFiq5xcIzJ/M8jokVwQ61B66B/8Fm3f7/bP3i93x/04f//I9wbMY1DF8a3",
+	"UpFYpqxUC5DckhB6d3LyTXeGeIA118bD/qPtHRvjqfmZ5K+4C7Re2TYMlKd5TC8s0LdPwtkn4eyj+AKh",
+	"5q7ZQ6RMU74l4xiYsJtd+NfmiKBye44gf6DIt8gYjCed0B+AaNdiZHwaU27povfe+UOl9FVnwPhMu3uL",
+	"Go3ua0t+7ngdYNmQCM+NbagwC8QWVxWxkfCxv+tcmj9EhHTp+AhgBg3ymMMAHyI/SIQlgufhV5yueZgg",
+	"8qRBdssxY0bE2BA0sJFUI0wOgFn2FepOzWI8rd+3xmt/dZ6JgmGqxG89oHWlfgj2pzuVX4jRVC8Kl1Y5",
+	"4tukcfXYKVduAmklgM9W+EHIAsIgSzdmhoX4dDsVhUD3TMrqIBW4RWVmkyeQy/uz86VaSi+tm/EW14c4",
+	"7wKWuHqbzDR5pkHK5vv37z86Qq8EXFx+boSy63D6uN0dDfCDY4D5pdgEBVYu/Sflwy/CBaq6KnBUuduW",
+	"d6p5uOkKuduQsGMTpTZaE3mWJiSWxarAch4mlDJ15XJJHVFIV64XOLqYBHCoQpadLW/MtONy+uPsP3/2",
+	"4izkpUfvqvFb373MNAaVfan9B77/aE46HKrgt0rmk/USSkkP3ycYK6aq7yWtONI7aClpC45EeEVw2S8F",
+	"l+ZorQcNUVef7xJ01TQpn8KvPkkqnySVba6XrxYc+J/lBjp7p3FY2+ewu4MrZrfUeZRps543D5Fho6x5",
+	"DtYLvd9RR+0/RA/X72g6ZZMNa6jim6tJKqI4g2bJCK6uTkI+wFGCeNKuQv/KkSBZwQ42UBV/NQ1VdDeR",
+	"1zt9Jo2rW2Qu2kMXeMnBxQcJYrkqQetKZV7j3eYVkDAw7BAo6vb8jO1RPnyF/wj/OKVRMqXdJFemtceO",
+	"HWjZftKHBHY+1oKQyXa7O7/AffYz35/UZtNluuuFWa9FrtSyJvK5ocr+4QHU+WbTlf5eVzTO/c9+T7te",
+	"bL6sayfLn9B1J+zTvf3p3v549/bKfRXdO7Lw6rMPcpe7FJzb6RIrFuvdNYs5ZWSIgWhJH0adQP8QxWdi",
+	"nX/IC9fXD0hVqIlNnh1uwj5lL7j7AIA8LzPC1vZKHGnrvtlO1X6HDhux3gNt1rBX2diBMIddvd9jr7Sx",
+	"lGOIQGPhb/yYsC8BeKaMyy8DjOvnw1dN6uzr6E37oL8PiKwCc6wU4QWi1SyTyOo8dk6cZcBZDYRgqBwK",
+	"AfSt7LrPC2xXz20ZUUB0aqh8R13IPjZfuHAwsA8fYEq619NCGOJ1czGxDEPQJkMVOV2kzPK3IsrscM8E",
+	"YN84E6LfVcxM9RUOIc8RSABs/3SzO7ToQrCFkt8taO6BwfSadvAq3mBJfuET9twNb+j0ySVjuFDStgat",
+	"2cXec2RBq/vuS/oOKOLX37D5VFs9E8iqTOSl8IFnUrFsQX3ATDMYUI3ZZWBntJJaq93FZStphVhryAG8",
+	"d709B0gz8jOxe245GojyM4964c1Ute16FLYlJhIhszOS77s0ba/v37HLYA7vyVP/PSBi/U2ZRnf33vew",
+	"zP+9YcR+Ylh/gTg/eHgCCU1K962Yp9NK7HBbN/Ojbk//HGypMxCTdxbBzsd5D9L1qbLpvmjKWwfuWhE5",
+	"5rMPZew8ZmYuxuCuENG/iChuYfKMEHsbsoYe7B8+PPz8/meHD3/G3KHriW3JoX+ye/789OKl8qvxgdl3",
+	"Rzxc4MQ2RGMliMEFfSUsRIz5UF3WpnqRmaT8JpnIhRVZZ52k+oo68iHVX6Iwm0MQqNOf5NQ739Uw6W52",
+	"tw/aubWg6aMmKWuCk2Uw5C8B99tFnlcixlkb83yXIc4oInUg7YrOhXNxKuNS2w7UisMbdlxcaHUgMzbl",
+	"ZsogF9cGAemVz6F9awEJOj9yt85xLq7ZaRm/2BjUuF38os5FBBYgitYO4J84pp/JO9ZN6Jrj7INSW5/4",
+	"9k98+6738FwoNPnRHtqdalXu173v8XC+23M35XZG3hrT7cjamKsIbwioFpMYFQJ/hqxZsqB4cdLnFBQh",
+	"0aOK3JhKlZdz2iEa6LKJNVGxx9T7QMZu5tuJJt2WcX+OpT8sY/zfBwn5PwBn7DYfXMV+/93JkVwoQDHY",
+	"+USe5IIXxiEnoC8ARlRVMBJECWfR6Cj8NTb96Th9Ok4f/zjR3nv/0+TEzQ8WKY/aZ6cmK9NElsYaCg0M",
+	"eQQpYNBYbkWCmSEphyxekUowqy3PyWGBtVMjvgO3m2qqXcj9blxcKgUP5NJYNtYKakJTkhGCDVGoMcOW",
+	"BxyMhk2qZ2lYpsfo/wGGJ+8zBKM2ukix0ESIzKfPDOHA5+JCIp51j30h0DiE3yVDlYJNa+QrkIbx/Aoi",
+	"FIywrI1RX0zM5nZJeeMlejU5RyyjC2agK8lQobcwhB7OdCFSH+RAKFjwyCXeZVeiED6lIoTJztDs1Ruq",
+	"pzg70LVqj4wIeNtYRbCJaTUWA18tL8RQqcXsXBQEZU0AqxSYgZxLGeBpXLvohcxpXLCmxVC54GSuqN4A",
+	"xhg6ihq8gvYSOq/hZ9IwUJVYoXzTUXNUyZgvKMxlgNHjuAQIMo5slvO8wijxHm5P1KK65z2eQYxpSi9c",
+	"FCnt8BAi2vPh4cn6WCn3Zfw27SA+T2NMTygQXsWd8J53Zc7WMpkqdB2Oy4iOUvlxHEqklTBrVTenWNET",
+	"XNyd3crguJ3g9mmt6mbhJTPyz2Kd5hVRiitqV2f7bA32+/2kVMJCtpWfUf1KU/RUNEdvorcVJzL215Hz",
+	"+q/REkM3BVJcPalF41cAE+nJ3USVuK/3vqc/RjJ794GCEP3V6K7ELg6USB4Z9skk43qRJiWaYgggrFyf",
+	"ziUBQzPYsWIyKyERqKmKs+tQUYR92cIaqw8dhVU60QRIDV/eM9B0O+q6t+ziCPEucw89f9AJ5KLKPocq",
+	"NrLQIWJNKvvZYSsiIo/6/Yf7jx4dPDh8eNh/9Gj/ZycoFHC7HtAbvvnEbP8yrDq0GomDeMaL3oB3+4cj",
+	"PYutA9ZKc/BqFkJdOH8q4H/aEdx/mfHesT4UV4w5YbTy4RRzgSwLeRjVsrvcC7SnkhahDvIxYJwd9PcJ",
+	"dtFUVFYRt4fgLQsPlkjsJWm/LnkuM3a+sB6Dhno25spBLTp3Ll0Qsguw0s5hKMG832GlMZ1CnqCJawIM",
+	"HX5kOhTwBkixZBxIvPHBaQFiyPFqBrIBJMcYqoxbDpWQrcxOC32lIK56CVhG1H+p5gvL2ofX1x1qJc73",
+	"4rPAn4uldqC3RCnIZ2sQTTqBTKKTHa4XSjeC4IL8OpWp+o+8ExhMiXuNeJEwcMDeETnj8znqQjTmm2yv",
+	"5Ec37EIzqayOkY1os9gr7T2zMg3jYWYKS8aHqgL4ceTva5lVPNQix3Schb/5m79hzzIxm2sr1Hg5VGcC",
+	"7ofoUfcPYol48zNwmyuELaSA1ZiIHvuDWFLteOR8EP9QEfImigaGJA0xw+5DziKC8vQp3Q8OGcaeV4JL",
+	"7qG/Hehr0e6EgpvHEh5Qefa3Zy+/hAlPoskHWjHnRZkHRI11wIljbaPBv88KZuZ8TPf1TMC2d8KUm9EZ",
+	"Wno6R9TQUJ2cfVNpCFlqVt7GATYZ0rac62zJzpdWgAKry874TLC3YplQtt9oUInLeOKGDOdyjhZf2nu/",
+	"/rXPoDFULByoX/8a5oL8HstxHfT3S0qB7WAv8Kb3Pl8pyLGMPqssL6RV50tstliIFFzZHA4qzmgZ/VMd",
+	"jncutfGYBgDKU/kQJjwXUYKXKHyICAC4nOfgLkjjdk0jQgJ0mDCR/KGy5R5BeGrUI9LsK1bgSAjCShfs",
+	"QlhMJQC1tGncp8IWy+7xxIoi7TAJOpAyX/5EKmmm0B+oGUdxXDYGe9kRJyAp0MADoCyhOHidInf4VizD",
+	"0YKt006tuLZ7Y3OZdobqd0IJzMbIxrkUyhoSmfFLOPAhFA3uGCzE2oElHConoZ4u1AnUFxxW+Vth0JrK",
+	"ytZwZjIxzh34maGdO1Tx1jXM35tHpIIJjTksK/KcRdVFVLMZKroez0XGpqIQSW0HislEjGGT68KPNKgR",
+	"HPobJbvgahnFtxkmrue6wPnosW9x1U6I/+uCaW3Ayk6ExGlDRU6OlLPMOIAyrx1aOa4p0XWQEsqGIZ9Z",
+	"GgErpaztJ4Yob+pTDuGCwATxvHPkEo6mdcY0dfhhUbN4jZwL5xrF2ofgseyFETyw0rCvXz/tfs7acF/g",
+	"VYCkpEvkCfPuSMPkhYID2SGsicP9z/tD1XZDB8C9cxiz9v7WLB220iP2/Cls2ZPT509ZLpVgQmWQ1fS5",
+	"VIhXp407oEM1nvKCj60ooK30b1Kf2pSWB437hWDmrZzPYdOc51y9xTpN/MKZzujQa9SUYbtOwUYL1mMn",
+	"Ol/MlAlxGcjOwJbAIQ9gen5gY/yI/RC2KvuhVPwU+or94G87/DFUP3S73cr/oJYU8K9S9gNbCsN+YKmv",
+	"IcUfWD5l9GUABvAfuwdMBs+4NQ+xOF7QZWH8WS1KSkf6ugpGGEp5+MHK64T95X/+f7B+rQZ/O5SFtaoE",
+	"jTq+YsOLoQqTgBIjtF+2UjITtZH6QMGVAv4Fm/Axpumi4E3WZ236hFjT/Q5UBKSWOH7qzVwUsJI9duo5",
+	"I2+VdbaiQl+ZKr0BIl8uG55XtwoxB07EEg+ivzEEt9VKqsvR8Z6a8L7eQjRfbfrb0CVbNlNrIZqxTo+d",
+	"6ivHeUhK50jk2I0ZasK3eBVRIj88B3G7sqTfISUXngJkmehDLP+l4+8XRrC0BxQc0wLNeM7mGtkRrpin",
+	"a0iEFVKpdL/3QHTvpx1C1mRA1xYGZTEjgLpZXZgjln7JvwSC+kxN0jKNhHwrYnM6ynKozGbljGCONLyI",
+	"pEKmzt28Y5HndO2GKxaI7JJZTaYLfXXPMDjTgbLizqLiyqcHhfULAQyZn0IiNZzNJCE/hjmk9wmwfQzn",
+	"0cklJbtDghLwgo7kOmwkT9OcxzIQO6jDuR3gR4f9R58Rb0jrhpPioOdxEUTB0j0oWY95pl/UOXqU0vZo",
+	"/j7thD2Dc+xz0xnimmke2wBNikm1g9gBBy8QViJboEBnAXwCijzo9+mdSViowku0PkccsDN4p1EwDqdg",
+	"bKjqoN+HiGyGEhwe5BCS3WVnJIOhAOcU/MJJ06FG5HJgIzGlVZeoCYUcHJH0wVjOl8gZnmsCsfLZk86X",
+	"jsdE9cM9g5VmAoSEIopogirOC4zfRzsZKu5cUivGw5T3er3UrxsZTcjvbDBUaZoO1d84XoYajqiuj7UR",
+	"RXeftd3VunqFdoYKtnfipUgSsKv3gSf9SaAJiacwQ+WXMnHBOcnz/aTfwxzX+/2DJNn4Rf/R581fHCT7",
+	"vT58cdB/0PzF/eSAvjjc38cvaPf49wkWftBPKA33mg/279+nD+4nB25C13gJni52x+GMJKA/iGWDJQV2",
+	"Bu60wAbileHwWJ1mACNJ11haglPyXfjcb+5NtLXKG3pdv8qPP3jfAvAcqpl4ic5XoqSt62UMcbozOtqG",
+	"LgbOHXqn4fKpAWys65Dn/reetJe+wLsPg/Xa/7yETIrWdNCKqUsr8fuwFqEXhuOg8YxFx9YYBKIJamKH",
+	"7PlNxXfNqJ+0AvO2tks1nFugXgHV9vl+Q839A0fe1nazVuV+VGHTsPs07v7+thUeRBU2jB2oJvzTf7ht",
+	"hYdRhYerFX6+/wgq/PzgYNsKP48qXEX92P/sEOZw/7P7D3dB4DpdRG7PScsL8pUN3/p0ad7dpVmz89cp",
+	"IooAXoeDvBIG+Er1XKgLO41tdHEi3I/nrQ5ars0Qzi4NvLfKXvq9QBEHbRA8HdNWODXnUK0otxPy23GF",
+	"HI8Y8hc7yu2cOaJo2iYl6upEp6hVJdkM9WvSxDnq/dyhNVaxMtgeG63p1ECzuE0A7rnWueAKT9l2Mb8O",
+	"DN8F/aLqETAWP8X7foob+MCWXgCDYDwc5Im00WGOTb0LtWU8X4NV118z72XZfe2EUGBBEdGtoqpPXXxT",
+	"qT53Lpb6SkWIoENFynB2EewATlEdeT8yI5RD0iBDjnFCKNhZwaqbSc7g8CWRTr5TmqFAJ86qKvFIz79q",
+	"BegxPzYSnJOQCcJlgpclqQutEPjbUHFMt6CNaJqTq00KfEi9ASaihQGyrMlkWuiFFcGUo52vI+qPr4I4",
+	"UdqQPG3sbZIOT8zl3QuIu4qBHwp3+vbC34fo0Z2JfFu4G+0kAv5CpL1PTO/PzPQ6I7LTEK6SrE8s8CcW",
+	"+BML/IkF/plYYDJJfEBO+PutHarfE/IGhuOjWbh3IhrgkLyhzOWpDpZ8Z/5F163gbk7PKkEvhRgLiXlW",
+	"qoRvnQP1LewDpwv1ofN8QrfW0/RPXsi/ALRIfyZp897qDO7ugkzZLT50mCCViXwnQ8JFk1RPm/PaAm8M",
+	"l4ixAJdgPZsv0AlYjUXiL3cRPEVM8OxdRYwnxCuJ7myUATBLj1wom/dDJsdeCs3AcIqGEC7qvHdPpsT4",
+	"aLV1nfC4YTjSuBul83RIeKTzjLmMRpiNUuSIWFKGdAWfvtM46GOoHotCXpZivB+jp0xfnSSx9+Mir+S9",
+	"Qje6sQQSFznQURAJrELqIkxG9CgdDNV+L2rlqtLFtQmsBiz1g0qPhuogrmKsF3nGKo7dtc/v11sM2SCl",
+	"T5JfK3EYl3BekzAZM6D0VhdL79TN0dUzeHdg9qxaXQ96MbhYc/BfyCtbyfrlnAHcbqDUq5F/H/Urbi2p",
+	"JxLF4pUmvZ9PU2LQQuA4cOtAvlr0HUJHkpX0o57bXLezpZsS+A4roMJTUQi4QtekGWVTaXB2a9lGsQas",
+	"G8IwKzvEYdygs5CXzrDpqpx8D31xWVbIie240FLvqg8r6adcWufVW83o6iYN66D5orBRKHo0VJ/F26WS",
+	"HG3AUtgUOCk8h+3wMP42yrnG2kHKgZOSkHdvSLtGne0MsAvuVAHFr0ROh9BoPNpMRrGyICj6TECO3KaB",
+	"IrxE9RTpJcxQkdfqMfrNDljMIEymsviNdw8tM9uivyp6tDz9/bNTdnoI5DXPBUXYpl8sVAa+idCHl+dG",
+	"FJdYW2pY+5LnDnYWB/v1ydcv2FhngoRtu4iCpCuxagNWTgH7y3/6Z3B+hjiNaLLh8VDNCwHOQ4oDLmwg",
+	"jFBizBW4aDkvU0rugN05Ymkm4GJN6QSWuwjfILV8WuhZWi5kp8eqk1Zx8l0OlZ8h7/CKXLJbcKfoLPSV",
+	"5yhL1zE+VGYO16KZCmHZFdI6+E3TDUu2yDn6CBbo44x1/jZhv0lYN2H/Y8IsPx8q9JwNSQC5u6Q6bF6I",
+	"ibx2UwCbhc+1sYWeT4VLjQw3T3xHcbj+NE0U+bZXkIpxSmi9GWQGdv5a/pKCUQPWFpN2Zcquu/FOm+YP",
+	"u5cHvxHFQ5pCv8eG6vfPH7LLg96D3j5LX55+/afT/n7KZsIYDOOXij05fcgwcAIvJa1ElH6ItV+c/T4Z",
+	"qpdfnNKrl1/8Hb6moQ5oYAltxIWSNnFvGG3HhOlyAw+VlTORBKRP4KTmGP1PdXtK4fS/ibvbxQV8w4Si",
+	"G2+oOBvzopAQD0yRERjD8OL581dsUlBiEQ3MxO9fv34FeU1UiNex00IIOioUGL9QY1FYLpVdsvNFdiEs",
+	"WwoXmRBlCWbo83XJc5cAERfH+S6ukUBOQ9zsRxBEAp2pSiN1HE9HbfyGg0lZzgUraU+v1Kzqc7jzkUF+",
+	"L5HHz0PdA2C9SgW47OatvbnchhBP80m6+vmlq7NqencKR16oDxreSbJV8HJ631hPqidiPwPF8uYPqB+Y",
+	"E84wWRW70AKtWp5rNKVWHMIxEHajlh/KoohVF6MKoazjggDgPk4JJUsLTLsU7sAXeuJCo6JMAIEVLKEu",
+	"nBOvU88G5iKCkrFxsHkVQwbu+zXxqGxzOCpm4qpw6NKsyJVXvJzuIxdKQwIW3CUesiOYB72mqMeeWfR3",
+	"z4Rx7vmNkoQJPuZDFbWKADYl/1cX0sGX3+8Ft+BeliMUFGmNyCcoIUCkFuoU/EgjsW+hboxMdZdglC8L",
+	"DbwuYBXamkLdnt/wyCRuaxyFmAAms0oYaiVjEaYwAF04MF4gErkcyyGHlg0gN1Nu4kqd2OKHRlLBUJWj",
+	"W2+kdRP4XhfkLX0sK16Pa/0tHw3ue3/Lza6RDR5498np8ODRo10c5tyU/ExYoZXLuvEyDbJwgFAsShWR",
+	"Dxv9lObqkwnlw2tqsyzsRqsjf6LvfP4rOxWzXViLDXYU19De98GS/u5Dq2knZRQaEe+E8XGhjYGB0gH0",
+	"WXjoDkcl7lCtaHGP2A1XWWjKXetOOtoG0YYRoE0ZnbZGGiKytlYgWqUzkEW5MvSVa9a9XQNjE3p0N04v",
+	"H9IoVJ2bT0LML53wrJxSXtutH0ycKeHX6QDDUcgKfsXz7eSazdTniyUyl9CIKBiO6zvedcrW2KUELRVe",
+	"JgiY7yisoFvhUIWOIkyySTCO3Z1d6LDLHlL2v1SqML7IJKZNl40pW791Zc58E1uBwr4HHfj662ePPQW4",
+	"JbP5HqjzONkgORPqdCwRXhVaXdTugN72ebe+DZP/M+XeKldwDc0Lu6XMO/CJtfzEWn54Cu+PBuPlztse",
+	"/PcmIu70Dt0Zt6KQPP+QBv+xLjJCz3VWU9cmgm+MdbY2KeqZK/EidPJDUoJaYxsTpfoOfYL//CCpUle2",
+	"yk45Uj9QWtSxKJxqtBA+v6nvH2x9YwGn22gHQOKMO6hqdUXHaAFN0VblYxTE9ZyrTGSjyASUkitaOgae",
+	"h1+IEYGZpA7iIbU6FwXlFG3/9C+MJ6V2D65wri4WOS+SoVqw3zK+95d/+l/ud8AuWOuhLiq2JcJdmBdi",
+	"zgvnVzJUXFEMRBgoQZRKi14i/uPRBO2qHqXOjdq9dvgyxoo5eAHkEkCCnKsh2HsvAV2CTICz50GyksVQ",
+	"hXGazhGLNM0JmviwCm/QRBDwYHOec8JJdXbq37oH7Kcf2b/935jrwh423wkeM4XIuZWXIuy+oYrWBBTG",
+	"5+j/XjZwz4HBoGqUhnHPML7Xhhn/6cdvOkPV/tuT370AqAr20//2oLff++yIPVkUHGjO3smz18cn7Kuv",
+	"j1+w4/m8x5709gGcxeWzDRm5hsoBPg8YR3LJJMKpkAsU4Dk92pDKqE7W7iDray2AN4MHX7683z17/fLk",
+	"D12A5cDnlb2LwcdNe701eIAvZCFM0H0+7PY/697vv8ZAc6f7hECD1qAVzt5oVo4o11Dw+cvXXVKc7mNM",
+	"+QJGIwqQlmgM7NQXZmf00tSy1SYt3DEEQ729vrQ2xz+T4nRlqdeK8e5G9jN4u3St4RZPmzmKve9hb3xy",
+	"ZP/EKn9oloFIZuRKxiLacMtkrWv3850zyo2qylWqfbN+AUnxL1/TuCWVKonTJ23jLwEW+33O1m4aRsqH",
+	"tnOip2fGLIRhnBVcZcAIQjWsHRB/9w8+Z+fSmk6pvQfXbUUgwsZrDcW4EDaoAtGW7+PEVL48CkBeovDo",
+	"zvAcOUiHFDxUmGMS3fbQmzzXF4ZJu55Jew1dfR/OLAIyReVADMXzJhCIyuOkReOuWZ22txJjp38mVgfb",
+	"viFAEdc/yp7gVhb8GBWyzr90yvKJdfjwlA2JBuO0WSKK5mjQlswCfR1i3CiF8taE61Rc6rdOsMSajhzs",
+	"QonU2N/vlNKtEtclnjUl/RiqCHbS+8gUWG9GdTqTaWO2SOyup0EfzY5RIQ2Hq7NF0/Ip2fkvgsGGpXj/",
+	"Y1IIlZkPlFaHvgDptIY1jMCgXnEUp5CLIp9Q6h8qiHQI+z9lbZejiqUm13NAN0XAknNuRIwpPROcTJHO",
+	"+Hr2GGsqo69SXyItw0bK7pIRUmX6qmzwoA+Z6OCqLHTuYVSNtIxb9tO/HLCzx6x9xQvIPUcKrJ/+5T4+",
+	"JMfHDvoqaAUOeWdTcTXlhYUwk8Ky9rOzl+zh5w/73QM3nG+FsRcYB4v+f/vdA1NWnrD97n1AFz7oHpiE",
+	"nXYPTcIOu/vk+7Hfv2ZtisrqoMJKwERyCs8rJ9ZUI+YMxUhg5L/SNoR1HYW/YkABUCg6q+1QpaGBAZvw",
+	"3IgU9JqXUuekw/TaSYODidMPQoXgI3qpc/TLxCCGibjyGLn2Sq8sjp2KwjkXhkUHkFVaD/QTVZCknAI0",
+	"qElpyknosWPCn2X7CD1bjmqoYGMfMYAoUGNK/eaz+6l4R2DYC6b6ayteIMCy9XOBSldYRDxWzF3oScR4",
+	"IvLCWCQuku1cI1bIkrxyh+qrE4YXebYohKEQaT4eFyKT1qF+FwJUyRYuFZWxs5evHMY9ZmBsFl2xN2vu",
+	"kQ+PCtPUjFdbfsg2wmi3Rm7BeXoVijVAxzxBRAqgH7F3csKkQtfpy7XYP7Ax7gC99Dm3Da2L6xtat/oO",
+	"2v69vmIzrpb1M5mUbBDGTlUJaELJYmxEpNf10r9vzkl4EKckPKhkJDz4yAnE6Dyt84QVhYRJgaPrR5QE",
+	"2G2VlaTxk6nyA2S6hrBUz3G4LFr+QFPoFwWaIZtRu8xhcao3b8RW0V6/K3UKXg9781zbnrm8+EDsF7ZS",
+	"CVeldtMakE55LSSM/Gpc3ICbHuRSBjHv4BLjkD8pXWVjoSyyBsrdbcQTDVXECtE8h0h7XxuyHnQqBPrr",
+	"5sI7hqHRFTNl5XB3nzYwI0pb6vWmy+9Vru3ZN7/7dAd+ugM/3YHRHShn/ELsmcuL31zP8lvEUCJp+HSN",
+	"3X3C3Zj0Ujwk0u6EERW741sJ2hbjRQFaQ6CK54IXojhe2Glr8EcCX0f1+jqvfHrrs/w5QS1CMR04kQ+U",
+	"VqRFc34dPksgz7JCGMP29FwoPpe9JZ/lGOE3EXY89ZgqbdG76LF0au3cDPb2aDy9nJ/3nOI9dW4XiyJv",
+	"DVp7GAvm5qre72dR6qOFQnk4dr0pwwDbpR7BdHrlUYVSDWCgTykhZlyXpxEUGBXhnQADYKIq3XKuVvpM",
+	"wewLNi9EJsceU9YrGCvojnF95edNlX517KA1sC+xf3U0SPygqXAZllpNB52E+K96QmQ7FR5YYyJEVmnF",
+	"BTmsNPNNY2hmUsaqlikXHQ6IAt/7sYhq/27cUPEx3r5yzHMHOmAiPyeX6Y5jNKTO5ViKeFpdgaZaXz0j",
+	"hVz8OT1oStGODqNhwnQ1gE7kYmwLreS49DatLC6Wbqj2ubwUSpiQZhb/nAlbyLGvPzqbvTrUKe2WN+/+",
+	"/wMA",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
