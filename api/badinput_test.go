@@ -129,7 +129,7 @@ func TestBadInputRefusedAndNothingStored(t *testing.T) {
 		{name: "CSV NaN response", path: csvPathOK, contentType: "text/csv", body: []byte(csvHead + "standard,nitrate,L1,0.5,NaN,,\n"), status: 422, pointer: "/lines/2/response"},
 		{name: "CSV negative concentration", path: csvPathOK, contentType: "text/csv", body: []byte(csvHead + "standard,nitrate,L1,-1,0.3,,\n"), status: 422, pointer: "/lines/2/concentration"},
 		{name: "CSV oversized line", path: csvPathOK, contentType: "text/csv", body: []byte(csvHead + "standard,nitrate," + strings.Repeat("L", 5000) + ",0.5,0.3,,\n"), status: 422},
-		{name: "CSV unknown analyte", path: csvPathOK, contentType: "text/csv", body: []byte(csvHead + "standard,arsenic,L1,0.5,0.3,,\n"), status: 422, pointer: "/standards/0/analyte"},
+		{name: "CSV unknown analyte", path: csvPathOK, contentType: "text/csv", body: []byte(csvHead + "standard,arsenic,L1,0.5,0.3,,\n"), status: 422, pointer: "/lines/2/analyte"},
 		// Other routes.
 		{name: "prediction without samples", path: curve + "/predictions", body: pred(map[string]any{"samples": []any{}}), status: 400, pointer: "/samples"},
 		{name: "prediction confidence 1.5", path: curve + "/predictions", body: pred(map[string]any{"confidence": 1.5, "samples": []any{map[string]any{"id": "W", "responses": []any{1}}}}), status: 400, pointer: "/confidence"},

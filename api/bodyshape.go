@@ -3,6 +3,7 @@ package api
 import (
 	"bytes"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"net/http"
 	"strconv"
@@ -22,11 +23,13 @@ import (
 //   - a string over its maxLength;
 //   - data after the JSON value.
 //
+// A body that is not well-formed JSON is refused with the line and column
+// where it stops being JSON (and a word on CSV when it looks like CSV).
+//
 // It holds no decoded value, so its memory does not grow with the body.
 // Everything else (types, patterns, required members, the schema's
 // composition) stays the validator's: where a schema composes others (allOf,
-// oneOf, anyOf) the walk goes on below it without judging. A body that is
-// not well-formed JSON is the validator's to refuse too (nil here).
+// oneOf, anyOf) the walk goes on below it without judging.
 func shapeCheck(raw []byte, schema *openapi3.Schema) *problemError {
 	w := shapeWalker{dec: json.NewDecoder(bytes.NewReader(raw))}
 	w.dec.UseNumber() // numbers stay text: nothing is converted
@@ -35,7 +38,8 @@ func shapeCheck(raw []byte, schema *openapi3.Schema) *problemError {
 			return newProblem(http.StatusBadRequest, "the body does not match the schema: "+b.detail,
 				ProblemField{Pointer: b.pointer, Detail: b.detail})
 		}
-		return nil // malformed: the validator answers it
+		detail := notJSON(raw, err, w.dec.InputOffset())
+		return newProblem(http.StatusBadRequest, detail, ProblemField{Pointer: "/", Detail: detail})
 	}
 	end := w.dec.InputOffset()
 	if len(bytes.TrimLeft(raw[end:], " \t\r\n")) != 0 {
@@ -44,6 +48,33 @@ func shapeCheck(raw []byte, schema *openapi3.Schema) *problemError {
 			ProblemField{Pointer: "/", Detail: "data after the JSON value"})
 	}
 	return nil
+}
+
+// notJSON says where raw stops being JSON: the decoder's complaint at its
+// line and column (1-based, in bytes of the line), and a word on CSV when
+// the body's first line looks like a CSV header.
+func notJSON(raw []byte, err error, offset int64) string {
+	var se *json.SyntaxError
+	if errors.As(err, &se) {
+		offset = se.Offset
+	}
+	if offset > 0 && se != nil {
+		offset-- // SyntaxError.Offset counts the offending byte
+	}
+	offset = min(max(offset, 0), int64(len(raw)))
+	before := raw[:offset]
+	line := bytes.Count(before, []byte("\n")) + 1
+	col := int(offset) - (bytes.LastIndexByte(before, '\n') + 1) + 1
+	what := "the body ends before its JSON value does"
+	if se != nil {
+		what = se.Error()
+	}
+	msg := fmt.Sprintf("the body is not JSON (line %d, column %d: %s)", line, col, what)
+	first, _, _ := bytes.Cut(bytes.TrimLeft(raw, " \t\r\n"), []byte("\n"))
+	if bytes.Count(first, []byte(",")) >= 2 && len(first) > 0 && first[0] != '{' && first[0] != '[' {
+		msg += "; it looks like CSV: send a CSV run to POST /v1/runs/csv (Content-Type: text/csv) with method, instrument and acquired_at as query parameters"
+	}
+	return msg
 }
 
 // shapeBreach is the first breach shapeCheck found.

@@ -13,6 +13,7 @@ import (
 	"unicode/utf8"
 
 	"curvekeeper/api/oapi"
+	"curvekeeper/lab"
 )
 
 // Limits of the CSV run body. The per-group and per-run numbers are the JSON
@@ -220,11 +221,79 @@ type csvRunDecoder struct {
 
 	standards []oapi.StandardInput
 	stdIndex  map[[2]string]int // (analyte, level) → index in standards
-	stdLine   []int             // line that fixed each level's concentration
+	stdConcs  [][]float64       // each reading's concentration, per level (judged at the end)
 	samples   []oapi.RunSampleInput
 	smpIndex  map[[2]string]int // (analyte, sample_id) → index in samples
 	smpLine   []int             // line that fixed each sample's dilution
 	smpDil    []float64         // effective dilution of each sample
+	lines     csvLines
+}
+
+// csvLines maps the decoded run back to the CSV: the line of each reading
+// of each standard level and sample, in replicate order.
+type csvLines struct {
+	standards, samples [][]int
+}
+
+// locate rewrites a rule's breach reported on the decoded run (a JSON
+// pointer such as /standards/2/analyte) to the CSV line and column it came
+// from (/lines/4/analyte), as the spec promises for CSV bodies; the run's
+// header fields become their query parameters. Other errors pass unchanged.
+func (l *csvLines) locate(err error) error {
+	var le *lab.Error
+	if l == nil || !errors.As(err, &le) || le.In != lab.InBody {
+		return err
+	}
+	out := *le
+	out.Field = l.pointer(le.Field)
+	if q, ok := strings.CutPrefix(out.Field, "query:"); ok {
+		out.In, out.Field = lab.InQuery, "/"+q
+	}
+	out.Fields = make([]lab.FieldIssue, len(le.Fields))
+	for i, f := range le.Fields {
+		out.Fields[i] = lab.FieldIssue{Field: l.pointer(f.Field), Message: f.Message}
+	}
+	return &out
+}
+
+// pointer is locate for one pointer.
+func (l *csvLines) pointer(p string) string {
+	parts := strings.Split(strings.TrimPrefix(p, "/"), "/")
+	switch parts[0] {
+	case "method", "instrument", "acquired_at", "operator":
+		return "query:" + parts[0]
+	case "standards", "samples":
+	default:
+		return p
+	}
+	groups := l.standards
+	if parts[0] == "samples" {
+		groups = l.samples
+	}
+	if len(parts) < 2 {
+		return p
+	}
+	i, err := strconv.Atoi(parts[1])
+	if err != nil || i < 0 || i >= len(groups) || len(groups[i]) == 0 {
+		return p
+	}
+	lines := groups[i]
+	if len(parts) == 2 {
+		return "/lines/" + strconv.Itoa(lines[0])
+	}
+	column := parts[2]
+	switch column {
+	case "id":
+		column = csvColSampleID
+	case "responses":
+		if len(parts) == 4 {
+			if j, err := strconv.Atoi(parts[3]); err == nil && j >= 0 && j < len(lines) {
+				return "/lines/" + strconv.Itoa(lines[j]) + "/" + csvColResponse
+			}
+		}
+		column = csvColResponse
+	}
+	return "/lines/" + strconv.Itoa(lines[0]) + "/" + column
 }
 
 // fail records a breach; it reports whether decoding must stop.
@@ -246,6 +315,13 @@ func (d *csvRunDecoder) fail(line int, column, format string, args ...any) bool 
 // *csvRunError (422 with /lines/... pointers); an error of r itself (such
 // as the body limit's *http.MaxBytesError) is returned wrapped with %w.
 func decodeCSVRun(r io.Reader) (standards []oapi.StandardInput, samples []oapi.RunSampleInput, err error) {
+	standards, samples, _, err = decodeCSVRunLines(r)
+	return standards, samples, err
+}
+
+// decodeCSVRunLines is decodeCSVRun that also says which line each reading
+// came from.
+func decodeCSVRunLines(r io.Reader) (standards []oapi.StandardInput, samples []oapi.RunSampleInput, lines *csvLines, err error) {
 	d := &csvRunDecoder{stdIndex: map[[2]string]int{}, smpIndex: map[[2]string]int{}}
 	lr := newCSVLineReader(r)
 	header := true
@@ -258,12 +334,12 @@ func decodeCSVRun(r io.Reader) (standards []oapi.StandardInput, samples []oapi.R
 		if err == errCSVLineTooLong {
 			lastLine = lr.n
 			if d.fail(lr.n, "", "line longer than %d bytes", csvMaxLineBytes) || header {
-				return nil, nil, &csvRunError{Errors: d.errs}
+				return nil, nil, nil, &csvRunError{Errors: d.errs}
 			}
 			continue
 		}
 		if err != nil {
-			return nil, nil, fmt.Errorf("csv: read line %d: %w", lr.n+1, err)
+			return nil, nil, nil, fmt.Errorf("csv: read line %d: %w", lr.n+1, err)
 		}
 		lastLine = lr.n
 		if lr.n == 1 {
@@ -271,7 +347,7 @@ func decodeCSVRun(r io.Reader) (standards []oapi.StandardInput, samples []oapi.R
 		}
 		if !utf8.Valid(line) {
 			if d.fail(lr.n, "", "line is not valid UTF-8") || header {
-				return nil, nil, &csvRunError{Errors: d.errs}
+				return nil, nil, nil, &csvRunError{Errors: d.errs}
 			}
 			continue
 		}
@@ -281,24 +357,27 @@ func decodeCSVRun(r io.Reader) (standards []oapi.StandardInput, samples []oapi.R
 		fields, err := splitCSVLine(line)
 		if err != nil {
 			if d.fail(lr.n, "", "%v", err) || header {
-				return nil, nil, &csvRunError{Errors: d.errs}
+				return nil, nil, nil, &csvRunError{Errors: d.errs}
 			}
 			continue
 		}
 		if header {
 			header = false
 			if !d.header(lr.n, fields) {
-				return nil, nil, &csvRunError{Errors: d.errs}
+				return nil, nil, nil, &csvRunError{Errors: d.errs}
 			}
 			continue
 		}
 		if d.rows++; d.rows > csvMaxRows {
 			d.fail(lr.n, "", "more than %d data rows", csvMaxRows)
-			return nil, nil, &csvRunError{Errors: d.errs}
+			return nil, nil, nil, &csvRunError{Errors: d.errs}
 		}
 		if d.row(lr.n, fields) {
-			return nil, nil, &csvRunError{Errors: d.errs}
+			return nil, nil, nil, &csvRunError{Errors: d.errs}
 		}
+	}
+	if !header {
+		d.judgeConcentrations()
 	}
 	if header {
 		d.fail(lastLine+1, "", "no header line (expected the columns %s)", strings.Join(csvColumns[:csvRequiredColumns], ","))
@@ -306,9 +385,42 @@ func decodeCSVRun(r io.Reader) (standards []oapi.StandardInput, samples []oapi.R
 		d.fail(lastLine+1, "", "no standard rows: a run needs at least one standard")
 	}
 	if len(d.errs) > 0 {
-		return nil, nil, &csvRunError{Errors: d.errs}
+		return nil, nil, nil, &csvRunError{Errors: d.errs}
 	}
-	return d.standards, d.samples, nil
+	return d.standards, d.samples, &d.lines, nil
+}
+
+// judgeConcentrations reports each reading whose concentration differs from
+// the one most readings of its level give (the earliest, on a tie): a typo
+// on one line is blamed on that line, not on the lines that agree.
+func (d *csvRunDecoder) judgeConcentrations() {
+	for i, concs := range d.stdConcs {
+		counts := map[float64]int{}
+		best := concs[0]
+		for _, c := range concs {
+			if counts[c]++; counts[c] > counts[best] {
+				best = c
+			}
+		}
+		if counts[best] == len(concs) {
+			continue
+		}
+		s := &d.standards[i]
+		s.Concentration = best
+		var agree []string
+		for j, c := range concs {
+			if c == best {
+				agree = append(agree, strconv.Itoa(d.lines.standards[i][j]))
+			}
+		}
+		for j, c := range concs {
+			if c != best && d.fail(d.lines.standards[i][j], csvColConcentration,
+				"concentration %g differs from %g given on %s for analyte %s level %s: replicates of a level repeat its concentration",
+				c, best, lineList(agree), s.Analyte, s.Level) {
+				return
+			}
+		}
+	}
 }
 
 // header reads the column names; it reports whether they are usable.
@@ -362,7 +474,7 @@ func (d *csvRunDecoder) cell(fields []string, name string) (string, bool) {
 // row decodes one data row; it reports whether decoding must stop.
 func (d *csvRunDecoder) row(n int, fields []string) bool {
 	if len(fields) != d.nfields {
-		return d.fail(n, "", "%d fields, the header has %d", len(fields), d.nfields)
+		return d.fail(n, "", "%d fields, the header has %d%s", len(fields), d.nfields, decimalCommaHint(fields, d.nfields))
 	}
 	kind, _ := d.cell(fields, csvColKind)
 	bad := false
@@ -422,16 +534,16 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 			i = len(d.standards)
 			d.stdIndex[key] = i
 			d.standards = append(d.standards, oapi.StandardInput{Analyte: analyte, Level: level, Concentration: conc})
-			d.stdLine = append(d.stdLine, n)
+			d.stdConcs = append(d.stdConcs, nil)
+			d.lines.standards = append(d.lines.standards, nil)
 		}
 		s := &d.standards[i]
-		if s.Concentration != conc {
-			return d.fail(n, csvColConcentration, "concentration %g differs from %g given on line %d for analyte %s level %s", conc, s.Concentration, d.stdLine[i], analyte, level)
-		}
 		if len(s.Responses) == fastResponsesMax {
 			return d.fail(n, csvColResponse, "more than %d readings for analyte %s level %s", fastResponsesMax, analyte, level)
 		}
 		s.Responses = append(s.Responses, resp)
+		d.stdConcs[i] = append(d.stdConcs[i], conc)
+		d.lines.standards[i] = append(d.lines.standards[i], n)
 	case "sample":
 		if _, ok := d.col[csvColSampleID]; !ok {
 			if d.noSample {
@@ -481,6 +593,7 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 			d.samples = append(d.samples, oapi.RunSampleInput{Analyte: analyte, ID: id, Dilution: dil})
 			d.smpLine = append(d.smpLine, n)
 			d.smpDil = append(d.smpDil, eff)
+			d.lines.samples = append(d.lines.samples, nil)
 		}
 		s := &d.samples[i]
 		if d.smpDil[i] != eff {
@@ -490,10 +603,39 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 			return d.fail(n, csvColResponse, "more than %d readings for analyte %s sample %s", fastResponsesMax, analyte, id)
 		}
 		s.Responses = append(s.Responses, resp)
+		d.lines.samples[i] = append(d.lines.samples[i], n)
 	default:
 		return d.fail(n, csvColKind, "%s is not a kind (want \"standard\" or \"sample\")", csvQuote(kind))
 	}
 	return false
+}
+
+// lineList names lines in words: "line 3", "lines 3 and 4", "lines 2, 3 and 4".
+func lineList(lines []string) string {
+	if len(lines) == 1 {
+		return "line " + lines[0]
+	}
+	return "lines " + strings.Join(lines[:len(lines)-1], ", ") + " and " + lines[len(lines)-1]
+}
+
+// decimalCommaHint explains a row with more fields than the header when two
+// neighbouring fields are both bare digits, as a number written with a
+// decimal comma ("0,5") splits into.
+func decimalCommaHint(fields []string, want int) string {
+	if len(fields) <= want {
+		return ""
+	}
+	digits := func(s string) bool {
+		s = strings.TrimPrefix(s, "-")
+		return s != "" && strings.Trim(s, "0123456789") == ""
+	}
+	for i := 0; i+1 < len(fields); i++ {
+		if digits(fields[i]) && digits(fields[i+1]) {
+			return fmt.Sprintf(`: "%s,%s" looks like a number with a decimal comma; numbers use "." (%s.%s), or quote the field`,
+				fields[i], fields[i+1], fields[i], fields[i+1])
+		}
+	}
+	return ""
 }
 
 // response parses the row's reading into *v; it reports whether decoding

@@ -23,7 +23,7 @@ import (
 // instrument's raw data is never thrown away.
 func (s *Server) CreateRun(ctx context.Context, req oapi.CreateRunRequestObject) (oapi.CreateRunResponseObject, error) {
 	p := mustPrincipal(ctx)
-	body, format, hash, err := runBody(req)
+	body, lines, format, hash, err := runBody(req)
 	if err != nil {
 		return nil, err
 	}
@@ -34,7 +34,7 @@ func (s *Server) CreateRun(ctx context.Context, req oapi.CreateRunRequestObject)
 	}
 	created, err := s.lab.Ingest(ctx, p, in)
 	if err != nil {
-		return nil, err
+		return nil, lines.locate(err) // a CSV run's breaches name its lines
 	}
 	return runCreatedOut(created), nil
 }
@@ -68,31 +68,32 @@ func runCreatedOut(c *lab.RunCreated) oapi.CreateRun201JSONResponse {
 	return out
 }
 
-// runBody returns the run as JSON would carry it, whichever format came, and
-// the hash that identifies the request for idempotent replay.
-func runBody(req oapi.CreateRunRequestObject) (*oapi.RunRequest, string, []byte, error) {
+// runBody returns the run as JSON would carry it, whichever format came, the
+// CSV lines of its readings (nil for JSON), and the hash that identifies the
+// request for idempotent replay.
+func runBody(req oapi.CreateRunRequestObject) (*oapi.RunRequest, *csvLines, string, []byte, error) {
 	h := sha256.New()
 	if req.JSONBody != nil {
 		if req.Params.Method != nil || req.Params.Instrument != nil || req.Params.AcquiredAt != nil || req.Params.Operator != nil {
-			return nil, "", nil, newProblem(http.StatusBadRequest,
+			return nil, nil, "", nil, newProblem(http.StatusBadRequest,
 				"the query parameters method, instrument, acquired_at and operator are for text/csv; a JSON run carries them in its body",
 				ProblemField{Pointer: "query:method", Detail: "not allowed with application/json"})
 		}
 		// A time the contract cannot write back is the client's error, named
 		// before the canonical form (which writes it) is made.
 		if err := lab.CheckTimestamp(lab.InBody, "/acquired_at", req.JSONBody.AcquiredAt.Time); err != nil {
-			return nil, "", nil, err
+			return nil, nil, "", nil, err
 		}
 		canon, err := json.Marshal(req.JSONBody) // canonical: the same run hashes the same whatever its spacing
 		if err != nil {
-			return nil, "", nil, fmt.Errorf("api: hash run: %w", err)
+			return nil, nil, "", nil, fmt.Errorf("api: hash run: %w", err)
 		}
 		h.Write([]byte("json\n"))
 		h.Write(canon)
-		return req.JSONBody, lab.FormatJSON, h.Sum(nil), nil
+		return req.JSONBody, nil, lab.FormatJSON, h.Sum(nil), nil
 	}
 	if req.Body == nil {
-		return nil, "", nil, newProblem(http.StatusUnsupportedMediaType, "send the run as application/json or text/csv")
+		return nil, nil, "", nil, newProblem(http.StatusUnsupportedMediaType, "send the run as application/json or text/csv")
 	}
 	var missing []ProblemField
 	if req.Params.Method == nil {
@@ -105,19 +106,19 @@ func runBody(req oapi.CreateRunRequestObject) (*oapi.RunRequest, string, []byte,
 		missing = append(missing, ProblemField{Pointer: "query:acquired_at", Detail: "required with text/csv (RFC 3339)"})
 	}
 	if len(missing) > 0 {
-		return nil, "", nil, newProblem(http.StatusBadRequest, "a CSV run needs method, instrument and acquired_at as query parameters", missing...)
+		return nil, nil, "", nil, newProblem(http.StatusBadRequest, "a CSV run needs method, instrument and acquired_at as query parameters", missing...)
 	}
 	raw, err := io.ReadAll(req.Body)
 	if err != nil {
 		var mbe *http.MaxBytesError
 		if errors.As(err, &mbe) {
-			return nil, "", nil, newProblem(http.StatusRequestEntityTooLarge, fmt.Sprintf("the body is over the limit of %d bytes", mbe.Limit))
+			return nil, nil, "", nil, newProblem(http.StatusRequestEntityTooLarge, fmt.Sprintf("the body is over the limit of %d bytes", mbe.Limit))
 		}
-		return nil, "", nil, fmt.Errorf("api: read CSV body: %w", err)
+		return nil, nil, "", nil, fmt.Errorf("api: read CSV body: %w", err)
 	}
-	standards, samples, err := decodeCSVRun(bytes.NewReader(raw))
+	standards, samples, lines, err := decodeCSVRunLines(bytes.NewReader(raw))
 	if err != nil {
-		return nil, "", nil, csvProblem(err)
+		return nil, nil, "", nil, csvProblem(err)
 	}
 	run := &oapi.RunRequest{Method: *req.Params.Method, Instrument: *req.Params.Instrument,
 		AcquiredAt: *req.Params.AcquiredAt, Operator: req.Params.Operator, Standards: standards}
@@ -129,7 +130,7 @@ func runBody(req oapi.CreateRunRequestObject) (*oapi.RunRequest, string, []byte,
 		h.Write([]byte(strconv.Quote(part)))
 	}
 	h.Write(raw)
-	return run, lab.FormatCSV, h.Sum(nil), nil
+	return run, lines, lab.FormatCSV, h.Sum(nil), nil
 }
 
 // csvProblem lists every breach of the CSV layout by line and column.

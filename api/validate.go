@@ -196,7 +196,7 @@ func fieldOf(prefix string, err error, fallback ...string) ProblemField {
 			anys[i] = t
 		}
 		ptr := lab.Pointer(anys...)
-		reason := se.Reason
+		reason := humanReason(se)
 		if prefix != "" {
 			return ProblemField{Pointer: prefix + ptr, Detail: reason}
 		}
@@ -207,7 +207,7 @@ func fieldOf(prefix string, err error, fallback ...string) ProblemField {
 	}
 	msg := ""
 	if err != nil {
-		msg = firstLine(err.Error())
+		msg = humanMessage(firstLine(err.Error()))
 	}
 	if msg == "" && len(fallback) > 0 {
 		msg = fallback[0]
