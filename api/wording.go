@@ -16,13 +16,13 @@ import (
 // patternWords says in words what each pattern of the spec accepts.
 var patternWords = map[string]string{
 	`^[0-9a-fA-F]{8}-[0-9a-fA-F]{4}-[0-9a-fA-F]{4}-[0-9a-fA-F]{4}-[0-9a-fA-F]{12}$`: "must be a UUID such as 01a242fb-d46d-790e-8293-11f8c4644479",
-	`^[A-Za-z0-9][A-Za-z0-9._:-]{0,63}$`:                                          "must be an identifier: 1 to 64 characters of A-Z a-z 0-9 . _ : -, starting with a letter or digit",
-	`^[A-Za-z0-9][A-Za-z0-9._:@-]{0,127}$`:                                        "must be 1 to 128 characters of A-Z a-z 0-9 . _ : @ -, starting with a letter or digit",
-	`^[A-Za-z0-9._:-]{1,128}$`:                                                    "must be 1 to 128 characters of A-Z a-z 0-9 . _ : -",
-	`^[!-~]{1,32}$`:                                                               "must be a unit of 1 to 32 printable ASCII characters without spaces, such as mg/L or ug/L",
-	`^[^\x00-\x08\x0B\x0C\x0E-\x1F\x7F]+$`:                                        "must not be empty or hold control characters",
-	`^[A-Za-z0-9_-]+$`:                                                            "must be a cursor as the previous page's next_cursor gave it",
-	`^[a-z0-9][a-z0-9._-]{0,63}$`:                                                 "must be a login: 1 to 64 characters of a-z 0-9 . _ -, starting with a letter or digit",
+	`^[A-Za-z0-9][A-Za-z0-9._:-]{0,63}$`:                                            "must be an identifier: 1 to 64 characters of A-Z a-z 0-9 . _ : -, starting with a letter or digit",
+	`^[A-Za-z0-9][A-Za-z0-9._:@-]{0,127}$`:                                          "must be 1 to 128 characters of A-Z a-z 0-9 . _ : @ -, starting with a letter or digit",
+	`^[A-Za-z0-9._:-]{1,128}$`:                                                      "must be 1 to 128 characters of A-Z a-z 0-9 . _ : -",
+	`^[!-~]{1,32}$`:                                                                 "must be a unit of 1 to 32 printable ASCII characters without spaces, such as mg/L or ug/L",
+	`^[^\x00-\x08\x0B\x0C\x0E-\x1F\x7F]+$`:                                          "must not be empty or hold control characters",
+	`^[A-Za-z0-9_-]+$`:                                                              "must be a cursor as the previous page's next_cursor gave it",
+	`^[a-z0-9][a-z0-9._-]{0,63}$`:                                                   "must be a login: 1 to 64 characters of a-z 0-9 . _ -, starting with a letter or digit",
 }
 
 // dateTimeWords is what every date-time field and parameter accepts.
