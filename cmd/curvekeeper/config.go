@@ -73,6 +73,10 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	var cfg config
 	fs := flag.NewFlagSet("curvekeeper "+name, flag.ContinueOnError)
 	fs.SetOutput(stderr)
+	fs.Usage = func() {
+		fmt.Fprint(fs.Output(), usageText+"\nflags:\n")
+		fs.PrintDefaults()
+	}
 	fs.StringVar(&cfg.Listen, "listen", env("CURVEKEEPER_LISTEN", "127.0.0.1:8080"), "address to listen on (CURVEKEEPER_LISTEN)")
 	fs.StringVar(&cfg.DatabaseURL, "database-url", env("DATABASE_URL", ""), "PostgreSQL URL; empty starts a private cluster in --data-dir (DATABASE_URL)")
 	fs.StringVar(&cfg.MigrateURL, "database-migrate-url", env("DATABASE_MIGRATE_URL", ""), "PostgreSQL URL of the tables' owner, for migrations; the service then logs in through --database-url, a role without superuser or ownership (DATABASE_MIGRATE_URL)")

@@ -371,3 +371,22 @@ func TestFlagsAfterArguments(t *testing.T) {
 		t.Errorf("got url %q positional %q", cfg.DatabaseURL, pos)
 	}
 }
+
+// TestHelpListsCommandsAndFlags: --help, -h and help name every subcommand
+// and the flags (before, --help printed serve's flags only and help the
+// commands only).
+func TestHelpListsCommandsAndFlags(t *testing.T) {
+	for _, args := range [][]string{{"--help"}, {"-h"}, {"help"}, {"serve", "--help"}, {"demo", "-h"}} {
+		var out, errOut strings.Builder
+		if err := run(context.Background(), args, func(string) string { return "" }, &out, &errOut); err != nil {
+			t.Errorf("%v: %v", args, err)
+			continue
+		}
+		text := out.String() + errOut.String()
+		for _, want := range []string{"curvekeeper [serve]", "curvekeeper migrate up|down", "curvekeeper demo", "-database-url", "-database-migrate-url", "(DATABASE_URL)"} {
+			if !strings.Contains(text, want) {
+				t.Errorf("%v: the help lacks %q:\n%s", args, want, text)
+			}
+		}
+	}
+}

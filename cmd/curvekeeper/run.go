@@ -37,20 +37,22 @@ func run(ctx context.Context, args []string, getenv func(string) string, stdout,
 		return migrateCmd(ctx, args, getenv, stdout, stderr)
 	case "demo":
 		return demoCmd(ctx, args, getenv, time.Now, stdout, stderr)
-	case "help", "-h", "--help":
-		fmt.Fprint(stdout, usageText)
-		return nil
+	case "help":
+		// The same text as --help: the commands, then every flag.
+		_, _, err := parseConfig("help", []string{"-h"}, getenv, stdout)
+		return helpOK(err)
 	default:
 		return &usageError{fmt.Sprintf("unknown command %q (want serve, migrate, demo or help)", cmd)}
 	}
 }
 
 const usageText = `usage:
-  curvekeeper [serve] [flags]                 serve the HTTP API (default)
-  curvekeeper migrate up|down [N]|force V|version     manage the database schema
-  curvekeeper demo [flags]                    load the invented demo scenario, print tokens
-  curvekeeper help                            this text
-Run "curvekeeper serve -h" for the flags.
+  curvekeeper [serve] [flags]                       serve the HTTP API (default)
+  curvekeeper migrate up|down [N]|force V|version   manage the database schema
+  curvekeeper demo [flags]                          load the invented demo scenario, print tokens
+  curvekeeper help                                  this text
+Every command takes the flags below; each flag's environment variable is
+named in parentheses, and a flag given wins over it.
 `
 
 func helpOK(err error) error {
