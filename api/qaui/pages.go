@@ -34,6 +34,8 @@ var uiPages = func() map[string]*template.Template {
 	funcs := template.FuncMap{
 		"g4":         func(v float64) string { return strconv.FormatFloat(v, 'g', 4, 64) },
 		"g6":         func(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) },
+		"g3":         func(v float64) string { return strconv.FormatFloat(v, 'g', 3, 64) },
+		"pct100":     func(v float64) string { return strconv.FormatFloat(100*v, 'f', 1, 64) },
 		"pct":        func(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) },
 		"when":       func(t time.Time) string { return t.UTC().Format("2006-01-02 15:04:05 UTC") },
 		"day":        func(t time.Time) string { return t.UTC().Format("2006-01-02") },
@@ -158,6 +160,7 @@ func (s *Pages) Register(e *echo.Echo) {
 	g.GET("/curves/:id/plot.svg", s.uiCurvePlot, read)
 	g.POST("/curves/:id/review", s.uiReview, review, s.requireCSRF)
 	g.POST("/curves/:id/sign", s.uiSign, review, s.requireCSRF)
+	g.POST("/curves/:id/exclusions", s.uiExclude, review, s.requireCSRF)
 	g.GET("/trends", s.uiTrendPage, read)
 	g.GET("/trends/plot.svg", s.uiTrendPlot, read)
 }
@@ -246,6 +249,10 @@ type curveView struct {
 	Problem   string
 	Reason    string
 	Signing   signingView
+	// Context is what the reviewer decides on besides the fit (curvecontext.go).
+	Context                       *curveContext
+	ExcludeProblem, ExcludeReason string
+	Excluded                      bool // the page follows an exclusion made from it
 }
 
 type auditRow struct {
@@ -319,6 +326,9 @@ func (s *Pages) curveView(c echo.Context, id string) (*curveView, error) {
 		}
 	}
 	v.Equation = equationText(cv.Report)
+	if v.Context, err = s.contextOf(ctx, cv); err != nil {
+		return nil, err
+	}
 	if v.Signing, err = s.signingViewOf(c, cv.ID); err != nil {
 		return nil, err
 	}
@@ -361,6 +371,7 @@ func (s *Pages) uiCurvePage(c echo.Context) error {
 		return s.Fail(c, err)
 	}
 	v.Done = map[string]string{"approve": "approved", "reject": "rejected"}[c.QueryParam("reviewed")]
+	v.Excluded = c.QueryParam("excluded") == "1"
 	return s.render(c, http.StatusOK, "curve", pageData{Title: v.Curve.Instrument + " · " + v.Curve.Analyte, Nav: "curves", Data: v})
 }
 
