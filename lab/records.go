@@ -318,6 +318,9 @@ const (
 	CauseReview       = "curve.review"
 	CauseVerification = "curve.verification"
 	CauseExclusion    = "curve.exclusion"
+	// CauseWithdrawal: an approval signature was withdrawn and its curve
+	// returned to review.
+	CauseWithdrawal = "signature.withdraw"
 )
 
 // Feed page sizes.

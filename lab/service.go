@@ -152,6 +152,9 @@ func (s *Service) Review(ctx context.Context, p Principal, id, decision, reason 
 	if err := CheckFreeText("/reason", reason); err != nil {
 		return nil, err
 	}
+	if p.IsPerson() {
+		return nil, FieldError("/decision", "a person signed in with login and password approves or rejects by signing (meaning approval), not by an unsigned review")
+	}
 	return s.store.ReviewCurve(ctx, id, decision, reason, p.Actor())
 }
 

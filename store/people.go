@@ -22,8 +22,11 @@ const (
 	ActionPersonSignInFail  = "person.sign_in_failed"
 	ActionSignatureSign     = "signature.sign"
 	ActionSignatureWithdraw = "signature.withdraw"
-	entityPerson            = "person"
-	entitySignature         = "signature"
+	// ActionCurveReturnToReview: a withdrawn approval returned its curve to
+	// pending review.
+	ActionCurveReturnToReview = "curve.return_to_review"
+	entityPerson              = "person"
+	entitySignature           = "signature"
 )
 
 // PasswordParams is the Argon2id cost of new password hashes; tests lower it.
@@ -247,7 +250,8 @@ func scanSignature(r pgx.Row) (*lab.Signature, error) {
 // SignCurve stores a signature on a curve and, for an approval, the curve's
 // review (status, results' release states), in one transaction with their
 // audit rows. An approval of a method that needs a review first is refused
-// unless a live review signature of another person is on the curve.
+// unless a live review signature of another person on the same content is
+// on the curve (lab.CheckApprovalSignature).
 func (db *DB) SignCurve(ctx context.Context, in lab.SignatureInput, actor string) (*lab.Signature, error) {
 	curveID, err := parseID("curve", in.RecordID)
 	if err != nil {
@@ -276,8 +280,24 @@ func (db *DB) SignCurve(ctx context.Context, in lab.SignatureInput, actor string
 			return classify("now", err)
 		}
 		if in.Meaning == lab.MeaningApproval {
+			facts, err := loadReviewFacts(ctx, tx, curveID)
+			if err != nil {
+				return err
+			}
+			rows, err := tx.Query(ctx, `SELECT login FROM signatures WHERE record_type = 'curve' AND record_id = $1
+AND meaning = 'review' AND withdrawn_at IS NULL AND content_hash = $2`, curveID, in.ContentHash[:])
+			if err != nil {
+				return classify("select review signatures", err)
+			}
+			reviewers, err := pgx.CollectRows(rows, pgx.RowTo[string])
+			if err != nil {
+				return classify("select review signatures", err)
+			}
+			if err := lab.CheckApprovalSignature(*facts, in.Decision, in.Person.Login, reviewers); err != nil {
+				return err
+			}
 			status := map[string]string{lab.DecisionApprove: lab.StatusApproved, lab.DecisionReject: lab.StatusRejected}[in.Decision]
-			if _, err := reviewCurveTx(ctx, tx, curveID, in.Decision, status, in.Reason, who); err != nil {
+			if _, err := reviewCurveTx(ctx, tx, curveID, in.Decision, status, in.Reason, who, true); err != nil {
 				return err
 			}
 		}
@@ -340,20 +360,72 @@ func (db *DB) WithdrawSignature(ctx context.Context, id string, by *lab.Person, 
 			return lab.Errorf(lab.KindForbidden, "only the signer or a %s may withdraw a signature", lab.RoleQAApprover)
 		}
 		who := "person:" + by.Login
+		if sig.RecordType == entityCurve && sig.Meaning == lab.MeaningReview {
+			var later int
+			err := tx.QueryRow(ctx, `SELECT count(*) FROM signatures WHERE record_type = 'curve' AND record_id = $1
+AND meaning = 'approval' AND withdrawn_at IS NULL AND signed_at >= $2`, sig.RecordID, sig.SignedAt).Scan(&later)
+			if err != nil {
+				return classify("select approvals", err)
+			}
+			if later > 0 {
+				return lab.Errorf(lab.KindConflict, "an approval signature was made on curve %s after this review; withdraw the approval first", sig.RecordID)
+			}
+		}
 		sig, err = scanSignature(tx.QueryRow(ctx, `
 UPDATE signatures SET withdrawn_at = now(), withdrawn_by = $2, withdrawal_reason = $3 WHERE id = $1
 RETURNING `+signatureColumns, id, by.FullName+" ("+by.Login+")", reason))
 		if err != nil {
 			return classify("withdraw signature", err)
 		}
-		return writeAudit(ctx, tx, who, ActionSignatureWithdraw, sig.RecordType, sig.RecordID, map[string]any{
+		if err := writeAudit(ctx, tx, who, ActionSignatureWithdraw, sig.RecordType, sig.RecordID, map[string]any{
 			"signature": id, "reason": reason, "meaning": sig.Meaning, "signer": sig.PrintedName, "via": actor,
-		})
+		}); err != nil {
+			return err
+		}
+		if sig.RecordType == entityCurve && sig.Meaning == lab.MeaningApproval {
+			return returnToReview(ctx, tx, sig, who, reason)
+		}
+		return nil
 	})
 	if err != nil {
 		return nil, classify("withdraw signature "+id, err)
 	}
 	return sig, nil
+}
+
+// returnToReview undoes the review that the approval signature sig made, in
+// tx: the review is withdrawn (the row stays), the curve goes back to
+// pending_review, its results' release states follow (releasable results
+// become provisional, or withheld when the curve failed its checks) with
+// one event each, and the return is audited. A curve whose review in
+// effect is not the signer's (already returned) is left as it is.
+func returnToReview(ctx context.Context, tx pgx.Tx, sig *lab.Signature, who, reason string) error {
+	var status string
+	err := tx.QueryRow(ctx, `SELECT status FROM curves WHERE id = $1 FOR UPDATE`, sig.RecordID).Scan(&status)
+	if err != nil {
+		return classify("select curve "+sig.RecordID, err)
+	}
+	tag, err := tx.Exec(ctx, `UPDATE reviews SET withdrawn_at = now(), withdrawn_by = $2, withdrawal_reason = $3
+WHERE curve_id = $1 AND withdrawn_at IS NULL AND actor = $4`, sig.RecordID, who, reason, lab.OwnerPerson+sig.Login)
+	if err != nil {
+		return classify("withdraw review", err)
+	}
+	if tag.RowsAffected() == 0 || status == lab.StatusPendingReview {
+		return nil
+	}
+	if _, err := tx.Exec(ctx, `UPDATE curves SET status = 'pending_review', reviewed_at = NULL, reviewed_by = NULL WHERE id = $1`, sig.RecordID); err != nil {
+		return classify("return curve to review", err)
+	}
+	if err := writeAudit(ctx, tx, who, ActionCurveReturnToReview, entityCurve, sig.RecordID, map[string]any{
+		"signature": sig.ID, "reason": reason, "from": status, "to": lab.StatusPendingReview,
+	}); err != nil {
+		return err
+	}
+	events := &eventBuffer{}
+	if _, err := refreshCurveResults(ctx, tx, sig.RecordID, lab.CauseWithdrawal, events); err != nil {
+		return err
+	}
+	return flushEvents(ctx, tx, events)
 }
 
 // SearchAudit returns audit rows by person and by record, newest first, at
