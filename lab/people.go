@@ -145,6 +145,22 @@ type PeopleConfig struct {
 	// Zone is the lab's time zone, shown beside UTC on every signature
 	// (nil means UTC).
 	Zone *time.Location
+	// SessionTTL is how long a session of the QA pages lasts, opened with
+	// a token or a person's login and password (0 means
+	// DefaultSessionTTL; at most MaxSessionTTL).
+	SessionTTL time.Duration
+}
+
+// DefaultSessionTTL is the length of a QA-page session when PeopleConfig
+// leaves it zero: one working shift (common practice).
+const DefaultSessionTTL = 8 * time.Hour
+
+// Session is the configured session length.
+func (c PeopleConfig) Session() time.Duration {
+	if c.SessionTTL <= 0 {
+		return DefaultSessionTTL
+	}
+	return min(c.SessionTTL, MaxSessionTTL)
 }
 
 // MaxFailures is the configured lockout threshold.
@@ -303,6 +319,9 @@ type PeopleStore interface {
 	// locking the account at maxFailures in a row; a disabled or locked
 	// account is KindForbidden whatever the password.
 	Authenticate(ctx context.Context, c Credentials, maxFailures int) (*Person, error)
+	// CreatePersonSession opens a QA-page session for an authenticated
+	// person and returns its secret.
+	CreatePersonSession(ctx context.Context, person *Person, ttl time.Duration) (string, error)
 	// RecordOwners returns the owners of the tokens that posted curve id's
 	// run and made the curve.
 	RecordOwners(ctx context.Context, curveID string) ([]string, error)

@@ -194,6 +194,21 @@ func (s *Service) SignIn(ctx context.Context, tokenSecret string, ttl time.Durat
 	return s.store.CreateSession(ctx, tokenSecret, ttl)
 }
 
+// SignInPerson opens a session of the QA pages for the person whose login
+// and password c gives (the lockout counts a wrong password), of the lab's
+// configured session length.
+func (s *Service) SignInPerson(ctx context.Context, c Credentials) (string, *Person, error) {
+	person, err := s.Authenticate(ctx, c)
+	if err != nil {
+		return "", nil, err
+	}
+	secret, err := s.people.CreatePersonSession(ctx, person, s.People.Session())
+	if err != nil {
+		return "", nil, err
+	}
+	return secret, person, nil
+}
+
 // SignOut ends a session of the QA pages.
 func (s *Service) SignOut(ctx context.Context, secret string) error {
 	return s.store.DeleteSession(ctx, secret)

@@ -361,14 +361,8 @@ func (db *DB) WithdrawSignature(ctx context.Context, id string, by *lab.Person, 
 		}
 		who := "person:" + by.Login
 		if sig.RecordType == entityCurve && sig.Meaning == lab.MeaningReview {
-			var later int
-			err := tx.QueryRow(ctx, `SELECT count(*) FROM signatures WHERE record_type = 'curve' AND record_id = $1
-AND meaning = 'approval' AND withdrawn_at IS NULL AND signed_at >= $2`, sig.RecordID, sig.SignedAt).Scan(&later)
-			if err != nil {
-				return classify("select approvals", err)
-			}
-			if later > 0 {
-				return lab.Errorf(lab.KindConflict, "an approval signature was made on curve %s after this review; withdraw the approval first", sig.RecordID)
+			if err := checkReviewWithdrawal(ctx, tx, sig); err != nil {
+				return err
 			}
 		}
 		sig, err = scanSignature(tx.QueryRow(ctx, `
@@ -391,6 +385,30 @@ RETURNING `+signatureColumns, id, by.FullName+" ("+by.Login+")", reason))
 		return nil, classify("withdraw signature "+id, err)
 	}
 	return sig, nil
+}
+
+// checkReviewWithdrawal refuses to withdraw review signature sig while a
+// live approval made after it rests on it: on a method that requires a
+// review before approval (lab.SignaturesReviewAndApproval), the approval
+// is withdrawn first. Elsewhere a review signature is withdrawn freely.
+func checkReviewWithdrawal(ctx context.Context, tx pgx.Tx, sig *lab.Signature) error {
+	facts, err := loadReviewFacts(ctx, tx, sig.RecordID)
+	if err != nil {
+		return err
+	}
+	if facts.Signatures != lab.SignaturesReviewAndApproval {
+		return nil
+	}
+	var later int
+	err = tx.QueryRow(ctx, `SELECT count(*) FROM signatures WHERE record_type = 'curve' AND record_id = $1
+AND meaning = 'approval' AND decision = 'approve' AND withdrawn_at IS NULL AND signed_at >= $2`, sig.RecordID, sig.SignedAt).Scan(&later)
+	if err != nil {
+		return classify("select approvals", err)
+	}
+	if later > 0 {
+		return lab.Errorf(lab.KindConflict, "%s: an approval signature on curve %s rests on this review; withdraw the approval first", lab.RuleReviewBeforeApproval, sig.RecordID)
+	}
+	return nil
 }
 
 // returnToReview undoes the review that the approval signature sig made, in
