@@ -61,8 +61,19 @@ func (s *Server) SignCurve(ctx context.Context, req oapi.SignCurveRequestObject)
 	if b.Decision != nil {
 		decision = string(*b.Decision)
 	}
-	sig, err := s.lab.SignCurve(ctx, mustPrincipal(ctx), req.ID.String(), lab.Credentials{Login: string(b.Login), Password: b.Password},
-		string(b.Meaning), decision, deref(b.Reason))
+	creds := lab.Credentials{Login: string(b.Login), Password: b.Password}
+	var (
+		sig *lab.Signature
+		err error
+	)
+	if b.Subject != nil && *b.Subject != oapi.SignatureRequestSubjectCurve {
+		if b.Meaning != oapi.SignatureRequestMeaningResponsibility || b.Decision != nil {
+			return nil, lab.FieldError("/meaning", "an %s is signed with meaning %q and no decision", *b.Subject, lab.MeaningResponsibility)
+		}
+		sig, err = s.lab.SignRecord(ctx, mustPrincipal(ctx), req.ID.String(), string(*b.Subject), creds, deref(b.Reason))
+	} else {
+		sig, err = s.lab.SignCurve(ctx, mustPrincipal(ctx), req.ID.String(), creds, string(b.Meaning), decision, deref(b.Reason))
+	}
 	if err != nil {
 		return nil, err
 	}

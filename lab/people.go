@@ -189,7 +189,7 @@ type Credentials struct {
 // Signature is an electronic signature on a record.
 type Signature struct {
 	ID          string
-	RecordType  string // "curve"
+	RecordType  string // SubjectCurve, SubjectExclusion or SubjectRelease
 	RecordID    string
 	PersonID    string
 	Login       string
@@ -207,6 +207,18 @@ type Signature struct {
 	WithdrawalReason string
 }
 
+// What is the meaning of the signature as a person reads it: the meaning,
+// with what was signed when it is not the curve itself.
+func (s *Signature) What() string {
+	switch s.RecordType {
+	case SubjectExclusion:
+		return s.Meaning + " for the exclusion of standards"
+	case SubjectRelease:
+		return s.Meaning + " for the release of results"
+	}
+	return s.Meaning
+}
+
 // Local is the signing time in the signature's zone (UTC when unknown).
 func (s *Signature) Local() time.Time {
 	loc, err := time.LoadLocation(s.TimeZone)
@@ -219,7 +231,7 @@ func (s *Signature) Local() time.Time {
 // Manifestation is the human-readable line of a signature (21 CFR 11.50):
 // printed name, date and time in UTC and the lab's zone, and meaning.
 func (s *Signature) Manifestation() string {
-	line := fmt.Sprintf("%s — %s — %s UTC (%s)", s.PrintedName, s.Meaning,
+	line := fmt.Sprintf("%s — %s — %s UTC (%s)", s.PrintedName, s.What(),
 		s.SignedAt.UTC().Format("2006-01-02 15:04:05"), s.Local().Format("2006-01-02 15:04:05 MST"))
 	if s.WithdrawnAt != nil {
 		line += fmt.Sprintf(" — withdrawn %s UTC: %s", s.WithdrawnAt.UTC().Format("2006-01-02 15:04:05"), s.WithdrawalReason)
@@ -328,6 +340,11 @@ type PeopleStore interface {
 	// SignCurve stores the signature and, for an approval, the curve's
 	// review, in one transaction with their audit rows.
 	SignCurve(ctx context.Context, in SignatureInput, actor string) (*Signature, error)
+	// SignRecord stores an exclusion or release signature with its audit
+	// row; a release only while the curve is approved.
+	SignRecord(ctx context.Context, in SignatureInput, actor string) (*Signature, error)
+	// ListSignatures lists a record's signatures; recordType "" lists
+	// every type on recordID.
 	ListSignatures(ctx context.Context, recordType, recordID string) ([]Signature, error)
 	WithdrawSignature(ctx context.Context, id string, by *Person, reason, actor string) (*Signature, error)
 	SearchAudit(ctx context.Context, f AuditFilter) ([]AuditEvent, error)

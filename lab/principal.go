@@ -59,11 +59,14 @@ func (p Principal) Actor() string {
 func (p Principal) IsPerson() bool { return p.TokenID == "" && strings.HasPrefix(p.Owner, OwnerPerson) }
 
 // ScopesOfRoles is what a person's session may do, by the person's roles:
-// every role reads curves and results; a reviewer or QA approver reviews;
-// an administrator holds admin. A person's session never writes runs.
+// every role reads curves and results; an analyst, reviewer or QA approver
+// holds curves:review, which in a person's session only signs (what the
+// role allows: an analyst an exclusion, a reviewer a review, a QA approver
+// an approval or release); an administrator holds admin. A person's
+// session never writes runs.
 func ScopesOfRoles(roles []string) []string {
 	out := []string{ScopeResultsRead}
-	if slices.Contains(roles, RoleReviewer) || slices.Contains(roles, RoleQAApprover) {
+	if slices.Contains(roles, RoleAnalyst) || slices.Contains(roles, RoleReviewer) || slices.Contains(roles, RoleQAApprover) {
 		out = append(out, ScopeCurvesReview)
 	}
 	if slices.Contains(roles, RoleAdministrator) {

@@ -211,8 +211,9 @@ func (db *DB) Authenticate(ctx context.Context, c lab.Credentials, maxFailures i
 
 // RecordOwners returns the owners of the tokens that posted curve id's run
 // and made the curve (the same token for a run's own fit; the excluding
-// analyst's for an exclusion's revision). An actor that names no token
-// (bootstrap, older rows) is returned as it is.
+// analyst's for an exclusion's revision), and the people whose live
+// signature takes responsibility for the exclusion. An actor that names no
+// token (bootstrap, older rows) is returned as it is.
 func (db *DB) RecordOwners(ctx context.Context, curveID string) ([]string, error) {
 	id, err := parseID("curve", curveID)
 	if err != nil {
@@ -223,7 +224,10 @@ SELECT DISTINCT COALESCE(t.owner, a.actor)
 FROM curves c JOIN runs r ON r.id = c.run_id,
      LATERAL (VALUES (r.received_by), (c.created_by)) AS a(actor)
 LEFT JOIN tokens t ON a.actor LIKE 'token:%' AND t.id::text = substring(a.actor FROM '[0-9a-f-]{36}$')
-WHERE c.id = $1`, id)
+WHERE c.id = $1
+UNION
+SELECT 'person:' || s.login FROM signatures s
+WHERE s.record_type = 'exclusion' AND s.record_id = $1::text AND s.withdrawn_at IS NULL`, id)
 	if err != nil {
 		return nil, classify("record owners", err)
 	}
@@ -253,11 +257,7 @@ func scanSignature(r pgx.Row) (*lab.Signature, error) {
 // unless a live review signature of another person on the same content is
 // on the curve (lab.CheckApprovalSignature).
 func (db *DB) SignCurve(ctx context.Context, in lab.SignatureInput, actor string) (*lab.Signature, error) {
-	curveID, err := parseID("curve", in.RecordID)
-	if err != nil {
-		return nil, err
-	}
-	id, err := newID()
+	curveID, id, err := newSignatureIDs(in)
 	if err != nil {
 		return nil, err
 	}
@@ -301,18 +301,9 @@ AND meaning = 'review' AND withdrawn_at IS NULL AND content_hash = $2`, curveID,
 				return err
 			}
 		}
-		sig, err = scanSignature(tx.QueryRow(ctx, `
-INSERT INTO signatures (id, record_type, record_id, person_id, login, printed_name, meaning, decision, reason, signed_at, time_zone, content_hash, content)
-VALUES ($1, 'curve', $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12)
-RETURNING `+signatureColumns, id, curveID, in.Person.ID, in.Person.Login, in.Person.FullName, in.Meaning, in.Decision,
-			strings.TrimSpace(in.Reason), signedAt, in.TimeZone, in.ContentHash[:], in.Content))
-		if err != nil {
-			return classify("insert signature", err)
-		}
-		return writeAudit(ctx, tx, who, ActionSignatureSign, entityCurve, curveID, map[string]any{
-			"signature": id, "printed_name": in.Person.FullName, "meaning": in.Meaning, "decision": in.Decision,
-			"reason": sig.Reason, "content_sha256": fmt.Sprintf("%x", in.ContentHash), "via": actor,
-		})
+		in.RecordType, in.RecordID = lab.SubjectCurve, curveID
+		sig, err = insertSignature(ctx, tx, id, in, signedAt, actor)
+		return err
 	})
 	if err != nil {
 		return nil, classify("sign curve "+curveID, err)
@@ -320,10 +311,70 @@ RETURNING `+signatureColumns, id, curveID, in.Person.ID, in.Person.Login, in.Per
 	return sig, nil
 }
 
+// newSignatureIDs checks the signed curve's id and draws the new
+// signature's.
+func newSignatureIDs(in lab.SignatureInput) (curveID, id string, err error) {
+	if curveID, err = parseID("curve", in.RecordID); err != nil {
+		return "", "", err
+	}
+	id, err = newID()
+	return curveID, id, err
+}
+
+// insertSignature stores signature in as id, signed at signedAt, with its
+// audit row on the curve (every subject's record id is a curve's).
+func insertSignature(ctx context.Context, tx pgx.Tx, id string, in lab.SignatureInput, signedAt time.Time, actor string) (*lab.Signature, error) {
+	sig, err := scanSignature(tx.QueryRow(ctx, `
+INSERT INTO signatures (id, record_type, record_id, person_id, login, printed_name, meaning, decision, reason, signed_at, time_zone, content_hash, content)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13)
+RETURNING `+signatureColumns, id, in.RecordType, in.RecordID, in.Person.ID, in.Person.Login, in.Person.FullName, in.Meaning, in.Decision,
+		strings.TrimSpace(in.Reason), signedAt, in.TimeZone, in.ContentHash[:], in.Content))
+	if err != nil {
+		return nil, classify("insert signature", err)
+	}
+	return sig, writeAudit(ctx, tx, lab.OwnerPerson+in.Person.Login, ActionSignatureSign, entityCurve, in.RecordID, map[string]any{
+		"signature": id, "subject": in.RecordType, "printed_name": in.Person.FullName, "meaning": in.Meaning, "decision": in.Decision,
+		"reason": sig.Reason, "content_sha256": fmt.Sprintf("%x", in.ContentHash), "via": actor,
+	})
+}
+
+// SignRecord stores an exclusion or release signature on curve
+// in.RecordID with its audit row, in one transaction. A release is stored
+// only while the curve (locked) is approved, so that it cannot race the
+// withdrawal of the approval.
+func (db *DB) SignRecord(ctx context.Context, in lab.SignatureInput, actor string) (*lab.Signature, error) {
+	curveID, id, err := newSignatureIDs(in)
+	if err != nil {
+		return nil, err
+	}
+	in.RecordID = curveID
+	var sig *lab.Signature
+	err = db.inTx(ctx, func(tx pgx.Tx) error {
+		var status string
+		var signedAt time.Time
+		err := tx.QueryRow(ctx, `SELECT status, now() FROM curves WHERE id = $1 FOR UPDATE`, curveID).Scan(&status, &signedAt)
+		if errors.Is(err, pgx.ErrNoRows) {
+			return lab.Errorf(lab.KindNotFound, "curve %s not found", curveID)
+		}
+		if err != nil {
+			return classify("select curve", err)
+		}
+		if in.RecordType == lab.SubjectRelease && status != lab.StatusApproved {
+			return lab.Errorf(lab.KindConflict, "curve %s is %s: its results are released only once it is approved", curveID, status)
+		}
+		sig, err = insertSignature(ctx, tx, id, in, signedAt, actor)
+		return err
+	})
+	if err != nil {
+		return nil, classify("sign "+in.RecordType+" of curve "+curveID, err)
+	}
+	return sig, nil
+}
+
 // ListSignatures returns a record's signatures, withdrawn ones too, in the
-// order they were made.
+// order they were made; recordType "" returns those of every type.
 func (db *DB) ListSignatures(ctx context.Context, recordType, recordID string) ([]lab.Signature, error) {
-	rows, err := db.Pool.Query(ctx, `SELECT `+signatureColumns+` FROM signatures WHERE record_type = $1 AND record_id = $2 ORDER BY signed_at, id`,
+	rows, err := db.Pool.Query(ctx, `SELECT `+signatureColumns+` FROM signatures WHERE ($1 = '' OR record_type = $1) AND record_id = $2 ORDER BY signed_at, id`,
 		recordType, recordID)
 	if err != nil {
 		return nil, classify("list signatures", err)

@@ -66,8 +66,14 @@ func (s *Pages) uiSign(c echo.Context) error {
 		if u := sessionOf(c); u.IsPerson() {
 			login = u.Login()
 		}
-		_, err := s.Lab.SignCurve(c.Request().Context(), sessionOf(c).Principal, id,
-			lab.Credentials{Login: login, Password: c.FormValue("password")}, meaning, decision, reason)
+		creds := lab.Credentials{Login: login, Password: c.FormValue("password")}
+		var err error
+		switch meaning {
+		case lab.SubjectExclusion, lab.SubjectRelease: // responsibility for what the radio names
+			_, err = s.Lab.SignRecord(c.Request().Context(), sessionOf(c).Principal, id, meaning, creds, reason)
+		default:
+			_, err = s.Lab.SignCurve(c.Request().Context(), sessionOf(c).Principal, id, creds, meaning, decision, reason)
+		}
 		s.Reviewed(id)
 		if err == nil {
 			return c.Redirect(http.StatusSeeOther, "/ui/curves/"+url.PathEscape(id)+"?signed=1#signatures-h")
