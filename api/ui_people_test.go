@@ -49,6 +49,12 @@ func TestUIPersonSignsExclusion(t *testing.T) {
 	if !strings.Contains(page.body, "Ana Analyst — responsibility for the exclusion of standards — ") {
 		t.Errorf("the page does not show the exclusion signature")
 	}
+	// A person's session has no unsigned review: the old form's route
+	// refuses it (a person signs).
+	r = b.post("/ui/curves/"+rev.ID+"/review", url.Values{"csrf_token": {page.csrf(t)}, "decision": {"approve"}, "reason": {"fine"}})
+	if r.status != http.StatusUnprocessableEntity || !strings.Contains(r.body, "approves or rejects by signing") {
+		t.Errorf("a person's unsigned review: %d", r.status)
+	}
 	// An analyst may not approve.
 	r = b.post("/ui/curves/"+rev.ID+"/sign", url.Values{"csrf_token": {page.csrf(t)}, "meaning": {"approval"}, "decision": {"approve"},
 		"password": {"ana-password-1"}})
