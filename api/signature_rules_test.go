@@ -6,7 +6,10 @@ import (
 	"strings"
 	"testing"
 
+	"curvekeeper/api"
 	"curvekeeper/api/oapi"
+	"curvekeeper/lab"
+	"curvekeeper/store/dbtest"
 )
 
 // signatureMethod defines a linear method over nitrate whose curves need
@@ -146,4 +149,23 @@ func TestSignedApprovalOnly(t *testing.T) {
 	if c := decode[oapi.Curve](t, e.get(t, e.admin, "/v1/curves/"+signed), http.StatusOK); c.Status != "approved" {
 		t.Errorf("after the approval signature the curve is %s", c.Status)
 	}
+}
+
+// The lab-wide setting refuses a token's unsigned review on a method that
+// sets nothing; a signed approval still approves.
+func TestLabRequiresSignedApproval(t *testing.T) {
+	t.Parallel()
+	e := newEnvDB(t, api.Config{}, dbtest.NewDB(t), func(s *lab.Service) { s.People.RequireSignedApproval = true })
+	e.person(t, "quinn", "Quinn Approver", "qa-approver")
+	e.method(t, "nitrate-plain", "nitrate")
+	_, instrument := e.token(t, "photometer-uploads", "runs:write")
+	_, reviewTok := e.token(t, "qa-desk", "curves:review")
+	id := e.run(t, instrument, runBody("nitrate-plain", "photometer-7", baseTime, standards("nitrate", 9))).Curves[0].ID.String()
+	p := wantProblem(t, e.postJSON(t, reviewTok, "/v1/curves/"+id+"/review", map[string]any{"decision": "approve", "reason": "ok"}),
+		http.StatusUnprocessableEntity, "/decision")
+	if !strings.Contains(p.Detail, "signed approval") {
+		t.Errorf("refusal %q does not name the rule", p.Detail)
+	}
+	decode[oapi.Signature](t, e.postJSON(t, reviewTok, "/v1/curves/"+id+"/signatures", map[string]any{
+		"login": "quinn", "password": "quinn-password", "meaning": "approval", "decision": "approve"}), http.StatusCreated)
 }

@@ -149,6 +149,10 @@ type PeopleConfig struct {
 	// a token or a person's login and password (0 means
 	// DefaultSessionTTL; at most MaxSessionTTL).
 	SessionTTL time.Duration
+	// RequireSignedApproval refuses the unsigned review route of a token
+	// on every method, as if each set QCPolicy.Signatures to
+	// SignaturesApproval (a method may still require review and approval).
+	RequireSignedApproval bool
 }
 
 // DefaultSessionTTL is the length of a QA-page session when PeopleConfig

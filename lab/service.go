@@ -155,6 +155,9 @@ func (s *Service) Review(ctx context.Context, p Principal, id, decision, reason 
 	if p.IsPerson() {
 		return nil, FieldError("/decision", "a person signed in with login and password approves or rejects by signing (meaning approval), not by an unsigned review")
 	}
+	if s.People.RequireSignedApproval {
+		return nil, FieldError("/decision", "%s (the lab requires signed approval on every method)", RuleSignedApproval)
+	}
 	return s.store.ReviewCurve(ctx, id, decision, reason, p.Actor())
 }
 

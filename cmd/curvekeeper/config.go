@@ -43,6 +43,9 @@ type config struct {
 	// SessionTTL is how long a session of the QA pages lasts (at most
 	// lab.MaxSessionTTL).
 	SessionTTL time.Duration
+	// RequireSignedApproval refuses a token's unsigned review on every
+	// method (lab.PeopleConfig.RequireSignedApproval).
+	RequireSignedApproval bool
 	// ClockSkew is how far ahead of its receipt a claimed measurement time
 	// may lie (lab.DefaultFutureSkew unless set).
 	ClockSkew time.Duration
@@ -91,6 +94,8 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	maxFailed := fs.Int("max-failed-sign-ins", 0, "wrong passwords in a row that lock a person's account; 0 means CURVEKEEPER_MAX_FAILED_SIGN_INS or 5")
 	checkEvery := fs.String("replica-check-interval", env("CURVEKEEPER_REPLICA_CHECK_INTERVAL", "1s"), "how often the service checks whether its database is a standby and how far replicas lag (CURVEKEEPER_REPLICA_CHECK_INTERVAL)")
 	clockSkew := fs.String("clock-skew", env("CURVEKEEPER_CLOCK_SKEW", "24h"), "how far ahead of its receipt a run's, sample's or verification's time may lie (CURVEKEEPER_CLOCK_SKEW)")
+	fs.BoolVar(&cfg.RequireSignedApproval, "require-signed-approval", env("CURVEKEEPER_REQUIRE_SIGNED_APPROVAL", "") == "true",
+		"approve or reject curves only by a person's electronic signature on every method: POST /v1/curves/{id}/review is refused (CURVEKEEPER_REQUIRE_SIGNED_APPROVAL=true)")
 	sessionTTL := fs.String("session-length", env("CURVEKEEPER_SESSION_LENGTH", "8h"), "how long a sign-in to the QA pages lasts, at most 24h (CURVEKEEPER_SESSION_LENGTH)")
 	cfg.BootstrapToken = getenv("CURVEKEEPER_BOOTSTRAP_TOKEN")
 	// Flags may come before or after positional arguments ("migrate down 1
