@@ -141,6 +141,9 @@ func qcFrom(b *oapi.MethodRequest) lab.QCPolicy {
 		q.MaxCurveAgeHours = *b.MaxCurveAgeHours
 	}
 	q.AllowSelfReview = b.AllowSelfReview != nil && *b.AllowSelfReview
+	if b.Signatures != nil {
+		q.Signatures = string(*b.Signatures)
+	}
 	return q
 }
 
@@ -183,6 +186,10 @@ func methodOut(m *lab.Method) oapi.Method {
 	}
 	if m.QC.AllowSelfReview {
 		out.AllowSelfReview = &m.QC.AllowSelfReview
+	}
+	if m.QC.Signatures != "" {
+		sig := oapi.MethodSignatures(m.QC.Signatures)
+		out.Signatures = &sig
 	}
 	if m.QC.MaxCurveAgeHours > 0 {
 		h := m.QC.MaxCurveAgeHours

@@ -61,8 +61,20 @@ func (s *Server) SignCurve(ctx context.Context, req oapi.SignCurveRequestObject)
 	if b.Decision != nil {
 		decision = string(*b.Decision)
 	}
-	sig, err := s.lab.SignCurve(ctx, mustPrincipal(ctx), req.ID.String(), lab.Credentials{Login: string(b.Login), Password: b.Password},
-		string(b.Meaning), decision, deref(b.Reason))
+	creds := lab.Credentials{Login: string(b.Login), Password: b.Password}
+	var (
+		sig *lab.Signature
+		err error
+	)
+	if b.Subject != nil && *b.Subject != oapi.SignatureRequestSubjectCurve {
+		if b.Meaning != oapi.SignatureRequestMeaningResponsibility || b.Decision != nil {
+			return nil, lab.FieldError("/meaning", "an %s is signed with meaning %q and no decision", *b.Subject, lab.MeaningResponsibility)
+		}
+		sig, err = s.lab.SignRecord(ctx, mustPrincipal(ctx), req.ID.String(), string(*b.Subject), creds, deref(b.Reason))
+	} else {
+		sig, err = s.lab.SignCurve(ctx, mustPrincipal(ctx), req.ID.String(), creds, string(b.Meaning), decision, deref(b.Reason))
+		s.curves.drop(req.ID.String()) // an approval changes the status
+	}
 	if err != nil {
 		return nil, err
 	}
@@ -89,6 +101,7 @@ func (s *Server) WithdrawSignature(ctx context.Context, req oapi.WithdrawSignatu
 	if err != nil {
 		return nil, err
 	}
+	s.curves.drop(sig.RecordID) // a withdrawn approval returns the curve to review
 	return oapi.WithdrawSignature200JSONResponse(signatureOut(sig, true)), nil
 }
 

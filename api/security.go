@@ -196,7 +196,11 @@ func (s *Server) rateLimitMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 		if isMachineReader(p.Scopes) {
 			scale = ReaderRateFactor
 		}
-		allowed, wait, q := s.limiter.allowScaled(p.TokenID, scale, s.lab.Now())
+		key := p.TokenID
+		if p.IsPerson() { // a person's QA-page session: one bucket per person
+			key = p.Actor()
+		}
+		allowed, wait, q := s.limiter.allowScaled(key, scale, s.lab.Now())
 		q.setHeaders(c.Response().Header())
 		if allowed {
 			return next(c)

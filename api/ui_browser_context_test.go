@@ -61,9 +61,10 @@ func TestBrowserCurveContext(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	do("sign in", chromedp.EmulateViewport(1400, 900), chromedp.Navigate(e.srv.URL+"/ui/sign-in"), chromedp.WaitVisible(chromedp.ID("token")),
+	do("sign in", chromedp.EmulateViewport(1400, 900), chromedp.Navigate(e.srv.URL+"/ui/sign-in"),
+		chromedp.Click(chromedp.CSS(`#token-sign-in summary`)), chromedp.WaitVisible(chromedp.ID("token")),
 		chromedp.SendKeys(chromedp.ID("token"), e.tokens[lab.ScopeCurvesReview]),
-		chromedp.Click(chromedp.CSS(`form button[type="submit"].primary`)), chromedp.WaitVisible(chromedp.ID("curve-list")))
+		chromedp.Click(chromedp.CSS(`#token-sign-in button[type="submit"]`)), chromedp.WaitVisible(chromedp.ID("curve-list")))
 	for _, width := range []int64{1400, 390} {
 		do("open the curve", chromedp.EmulateViewport(width, 900), chromedp.Navigate(e.srv.URL+"/ui/curves/"+id),
 			chromedp.WaitVisible(chromedp.ID("weighting")))

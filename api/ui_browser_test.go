@@ -24,7 +24,19 @@ import (
 // chromiumPath is the Debian package chromium's browser.
 const chromiumPath = "/usr/bin/chromium"
 
-func TestBrowserReviewFlow(t *testing.T) {
+// chrome is one headless Chromium tab of a browser test, with its
+// screenshot folder.
+type chrome struct {
+	t   *testing.T
+	ctx context.Context
+	dir string
+}
+
+// newChrome starts Chromium for t (skipping when it is not installed,
+// failing under CI=true) with screenshots going to
+// $CURVEKEEPER_ARTIFACTS/browser (or a temporary folder).
+func newChrome(t *testing.T) *chrome {
+	t.Helper()
 	if _, err := os.Stat(chromiumPath); err != nil {
 		if os.Getenv("CI") == "true" {
 			t.Fatalf("%s is missing in CI (install the Debian package chromium): %v", chromiumPath, err)
@@ -40,8 +52,6 @@ func TestBrowserReviewFlow(t *testing.T) {
 		t.Fatal(err)
 	}
 	t.Logf("screenshots go to %s", dir)
-
-	e := newUIEnv(t, false)
 	alloc, cancelAlloc := chromedp.NewExecAllocator(context.Background(),
 		chromedp.ExecPath(chromiumPath),
 		chromedp.Flag("headless", true),
@@ -53,55 +63,72 @@ func TestBrowserReviewFlow(t *testing.T) {
 		chromedp.Flag("no-first-run", true),
 		chromedp.UserDataDir(t.TempDir()),
 	)
-	defer cancelAlloc()
+	t.Cleanup(cancelAlloc)
 	// A bound, not a measurement: a wedged browser must not hang the suite.
 	ctx, cancel := context.WithTimeout(alloc, 3*time.Minute)
-	defer cancel()
+	t.Cleanup(cancel)
 	ctx, cancelTab := chromedp.NewContext(ctx)
-	defer cancelTab()
+	t.Cleanup(cancelTab)
+	return &chrome{t: t, ctx: ctx, dir: dir}
+}
 
-	shot := func(name string) {
-		t.Helper()
-		png, err := chromedp.Run(ctx, chromedp.FullScreenshot(100))
-		if err != nil {
-			t.Fatalf("screenshot %s: %v", name, err)
-		}
-		if err := os.WriteFile(filepath.Join(dir, name+".png"), png, 0o644); err != nil {
-			t.Fatal(err)
-		}
+// shot saves a full-page screenshot as name.png.
+func (b *chrome) shot(name string) {
+	b.t.Helper()
+	png, err := chromedp.Run(b.ctx, chromedp.FullScreenshot(100))
+	if err != nil {
+		b.t.Fatalf("screenshot %s: %v", name, err)
 	}
-	do := func(step string, actions ...chromedp.Action[chromedp.Void]) {
-		t.Helper()
-		if err := chromedp.Do(ctx, actions...); err != nil {
-			t.Fatalf("%s: %v", step, err)
-		}
+	if err := os.WriteFile(filepath.Join(b.dir, name+".png"), png, 0o644); err != nil {
+		b.t.Fatal(err)
 	}
-	text := func(sel string) string {
-		t.Helper()
-		s, err := chromedp.Run(ctx, chromedp.Text(chromedp.CSS(sel), chromedp.NodeVisible))
-		if err != nil {
-			t.Fatalf("read %s: %v", sel, err)
-		}
-		return s
+}
+
+// do runs actions, failing the test at step when one fails.
+func (b *chrome) do(step string, actions ...chromedp.Action[chromedp.Void]) {
+	b.t.Helper()
+	if err := chromedp.Do(b.ctx, actions...); err != nil {
+		b.t.Fatalf("%s: %v", step, err)
 	}
-	location := func() string {
-		t.Helper()
-		u, err := chromedp.Run(ctx, chromedp.Location())
-		if err != nil {
-			t.Fatal(err)
-		}
-		return u
+}
+
+// text is the visible text of the first element matching sel.
+func (b *chrome) text(sel string) string {
+	b.t.Helper()
+	s, err := chromedp.Run(b.ctx, chromedp.Text(chromedp.CSS(sel), chromedp.NodeVisible))
+	if err != nil {
+		b.t.Fatalf("read %s: %v", sel, err)
 	}
+	return s
+}
+
+// location is the tab's URL.
+func (b *chrome) location() string {
+	b.t.Helper()
+	u, err := chromedp.Run(b.ctx, chromedp.Location())
+	if err != nil {
+		b.t.Fatal(err)
+	}
+	return u
+}
+
+func TestBrowserReviewFlow(t *testing.T) {
+	b := newChrome(t)
+	e := newUIEnv(t, false)
+	ctx, dir, shot, do, text, location := b.ctx, b.dir, b.shot, b.do, b.text, b.location
 
 	// 1. A page of the service sends a visitor to the sign-in form.
-	do("open the list", chromedp.EmulateViewport(1280, 900), chromedp.Navigate(e.srv.URL+"/ui/curves"), chromedp.WaitVisible(chromedp.ID("token")))
+	do("open the list", chromedp.EmulateViewport(1280, 900), chromedp.Navigate(e.srv.URL+"/ui/curves"), chromedp.WaitVisible(chromedp.ID("login")))
 	if u := location(); !strings.Contains(u, "/ui/sign-in") {
 		t.Fatalf("signed out, the list went to %s, not the sign-in page", u)
 	}
 	shot("01-sign-in")
+	// The token sign-in is kept, one click away from the person's.
 	do("sign in",
+		chromedp.Click(chromedp.CSS(`#token-sign-in summary`)),
+		chromedp.WaitVisible(chromedp.ID("token")),
 		chromedp.SendKeys(chromedp.ID("token"), e.tokens[lab.ScopeCurvesReview]),
-		chromedp.Click(chromedp.CSS(`form button[type="submit"].primary`)),
+		chromedp.Click(chromedp.CSS(`#token-sign-in button[type="submit"]`)),
 		chromedp.WaitVisible(chromedp.ID("curve-list")),
 	)
 	if got := text(".signout .who"); !strings.Contains(got, "fixture-curves-review") {

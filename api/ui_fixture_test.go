@@ -104,6 +104,12 @@ func uiSlope(d int) float64 {
 // 40 + slope·x (with a small deterministic scatter) and returns its curve id.
 func (e *uiEnv) postRun(t *testing.T, at time.Time, slope float64, levels []float64) string {
 	t.Helper()
+	return e.postRunAs(t, e.tokens[lab.ScopeRunsWrite], at, slope, levels)
+}
+
+// postRunAs is postRun through the token whose secret is token.
+func (e *uiEnv) postRunAs(t *testing.T, token string, at time.Time, slope float64, levels []float64) string {
+	t.Helper()
 	var stds []map[string]any
 	for i, x := range levels {
 		y := 40 + slope*x
@@ -115,7 +121,7 @@ func (e *uiEnv) postRun(t *testing.T, at time.Time, slope float64, levels []floa
 			ID string `json:"id"`
 		} `json:"curves"`
 	}
-	e.api(t, e.tokens[lab.ScopeRunsWrite], http.MethodPost, "/v1/runs", map[string]any{
+	e.api(t, token, http.MethodPost, "/v1/runs", map[string]any{
 		"method": uiMethod, "instrument": uiInstrument, "acquired_at": at.Format(time.RFC3339), "standards": stds,
 	}, http.StatusCreated, &out)
 	return out.Curves[0].ID

@@ -168,6 +168,7 @@ type ReviewFacts struct {
 	RunPostedBy     string // the actor that posted the curve's run
 	RevisionBy      string // the actor that made this revision by exclusion; "" for a run's own fit
 	AllowSelfReview bool   // the method's explicit choice (QCPolicy.AllowSelfReview)
+	Signatures      string // what approval takes (QCPolicy.Signatures)
 	SupersededBy    string // the newer revision's id; "" while the curve is current
 
 	RunPostedByParty string // RunPostedBy's party; "" when unknown
@@ -208,6 +209,42 @@ func partyOr(party, actor string) string {
 		return party
 	}
 	return actor
+}
+
+// RuleSignedApproval is the rule an unsigned review breaks on a method that
+// requires signatures (QCPolicy.Signatures).
+const RuleSignedApproval = "signed approval: this method's curves are approved or rejected only by a person's electronic signature (POST /v1/curves/{id}/signatures), not by a token's review"
+
+// RuleReviewBeforeApproval is the rule an approval breaks on a method that
+// requires a signed review first.
+const RuleReviewBeforeApproval = "review before approval: this method needs a signed review by another person before the approval signature"
+
+// CheckUnsignedReview refuses the review route of a token (or any review
+// that is not a signature) on a method that requires signatures.
+func CheckUnsignedReview(f ReviewFacts) error {
+	if f.Signatures != "" {
+		return FieldError("/decision", "%s (the method requires %q)", RuleSignedApproval, f.Signatures)
+	}
+	return nil
+}
+
+// CheckApprovalSignature applies the method's signature requirement to an
+// approval signature that approves (a rejection withholds, so it needs no
+// review first): under SignaturesReviewAndApproval a live review signature
+// on the same content by a person other than signer must be on the curve.
+func CheckApprovalSignature(f ReviewFacts, decision, signer string, liveReviewers []string) error {
+	if f.Signatures != SignaturesReviewAndApproval || decision != DecisionApprove {
+		return nil
+	}
+	for _, r := range liveReviewers {
+		if r != signer {
+			return nil
+		}
+	}
+	if len(liveReviewers) > 0 {
+		return FieldError("/meaning", "%s (the review on this curve is the approver's own)", RuleReviewBeforeApproval)
+	}
+	return FieldError("/meaning", "%s (there is none on this curve)", RuleReviewBeforeApproval)
 }
 
 // isBidiControl reports the invisible bidirectional controls that change

@@ -145,6 +145,26 @@ type PeopleConfig struct {
 	// Zone is the lab's time zone, shown beside UTC on every signature
 	// (nil means UTC).
 	Zone *time.Location
+	// SessionTTL is how long a session of the QA pages lasts, opened with
+	// a token or a person's login and password (0 means
+	// DefaultSessionTTL; at most MaxSessionTTL).
+	SessionTTL time.Duration
+	// RequireSignedApproval refuses the unsigned review route of a token
+	// on every method, as if each set QCPolicy.Signatures to
+	// SignaturesApproval (a method may still require review and approval).
+	RequireSignedApproval bool
+}
+
+// DefaultSessionTTL is the length of a QA-page session when PeopleConfig
+// leaves it zero: one working shift (common practice).
+const DefaultSessionTTL = 8 * time.Hour
+
+// Session is the configured session length.
+func (c PeopleConfig) Session() time.Duration {
+	if c.SessionTTL <= 0 {
+		return DefaultSessionTTL
+	}
+	return min(c.SessionTTL, MaxSessionTTL)
 }
 
 // MaxFailures is the configured lockout threshold.
@@ -173,7 +193,7 @@ type Credentials struct {
 // Signature is an electronic signature on a record.
 type Signature struct {
 	ID          string
-	RecordType  string // "curve"
+	RecordType  string // SubjectCurve, SubjectExclusion or SubjectRelease
 	RecordID    string
 	PersonID    string
 	Login       string
@@ -191,6 +211,18 @@ type Signature struct {
 	WithdrawalReason string
 }
 
+// What is the meaning of the signature as a person reads it: the meaning,
+// with what was signed when it is not the curve itself.
+func (s *Signature) What() string {
+	switch s.RecordType {
+	case SubjectExclusion:
+		return s.Meaning + " for the exclusion of standards"
+	case SubjectRelease:
+		return s.Meaning + " for the release of results"
+	}
+	return s.Meaning
+}
+
 // Local is the signing time in the signature's zone (UTC when unknown).
 func (s *Signature) Local() time.Time {
 	loc, err := time.LoadLocation(s.TimeZone)
@@ -203,7 +235,7 @@ func (s *Signature) Local() time.Time {
 // Manifestation is the human-readable line of a signature (21 CFR 11.50):
 // printed name, date and time in UTC and the lab's zone, and meaning.
 func (s *Signature) Manifestation() string {
-	line := fmt.Sprintf("%s — %s — %s UTC (%s)", s.PrintedName, s.Meaning,
+	line := fmt.Sprintf("%s — %s — %s UTC (%s)", s.PrintedName, s.What(),
 		s.SignedAt.UTC().Format("2006-01-02 15:04:05"), s.Local().Format("2006-01-02 15:04:05 MST"))
 	if s.WithdrawnAt != nil {
 		line += fmt.Sprintf(" — withdrawn %s UTC: %s", s.WithdrawnAt.UTC().Format("2006-01-02 15:04:05"), s.WithdrawalReason)
@@ -303,12 +335,20 @@ type PeopleStore interface {
 	// locking the account at maxFailures in a row; a disabled or locked
 	// account is KindForbidden whatever the password.
 	Authenticate(ctx context.Context, c Credentials, maxFailures int) (*Person, error)
+	// CreatePersonSession opens a QA-page session for an authenticated
+	// person and returns its secret.
+	CreatePersonSession(ctx context.Context, person *Person, ttl time.Duration) (string, error)
 	// RecordOwners returns the owners of the tokens that posted curve id's
 	// run and made the curve.
 	RecordOwners(ctx context.Context, curveID string) ([]string, error)
 	// SignCurve stores the signature and, for an approval, the curve's
 	// review, in one transaction with their audit rows.
 	SignCurve(ctx context.Context, in SignatureInput, actor string) (*Signature, error)
+	// SignRecord stores an exclusion or release signature with its audit
+	// row; a release only while the curve is approved.
+	SignRecord(ctx context.Context, in SignatureInput, actor string) (*Signature, error)
+	// ListSignatures lists a record's signatures; recordType "" lists
+	// every type on recordID.
 	ListSignatures(ctx context.Context, recordType, recordID string) ([]Signature, error)
 	WithdrawSignature(ctx context.Context, id string, by *Person, reason, actor string) (*Signature, error)
 	SearchAudit(ctx context.Context, f AuditFilter) ([]AuditEvent, error)

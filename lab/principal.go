@@ -45,8 +45,35 @@ func (p Principal) Has(scope string) bool {
 	return slices.Contains(p.Scopes, ScopeAdmin) || slices.Contains(p.Scopes, scope)
 }
 
-// Actor names the principal in the audit trail.
-func (p Principal) Actor() string { return "token:" + p.Name + ":" + p.TokenID }
+// Actor names the principal in the audit trail: the token, or the person
+// of a QA-page session opened with login and password ("person:<login>").
+func (p Principal) Actor() string {
+	if p.IsPerson() {
+		return p.Owner
+	}
+	return "token:" + p.Name + ":" + p.TokenID
+}
+
+// IsPerson reports whether the principal is a person signed in with login
+// and password (no token).
+func (p Principal) IsPerson() bool { return p.TokenID == "" && strings.HasPrefix(p.Owner, OwnerPerson) }
+
+// ScopesOfRoles is what a person's session may do, by the person's roles:
+// every role reads curves and results; an analyst, reviewer or QA approver
+// holds curves:review, which in a person's session only signs (what the
+// role allows: an analyst an exclusion, a reviewer a review, a QA approver
+// an approval or release); an administrator holds admin. A person's
+// session never writes runs.
+func ScopesOfRoles(roles []string) []string {
+	out := []string{ScopeResultsRead}
+	if slices.Contains(roles, RoleAnalyst) || slices.Contains(roles, RoleReviewer) || slices.Contains(roles, RoleQAApprover) {
+		out = append(out, ScopeCurvesReview)
+	}
+	if slices.Contains(roles, RoleAdministrator) {
+		out = append(out, ScopeAdmin)
+	}
+	return out
+}
 
 // CheckToken validates a new token's name and scopes and returns the scopes
 // deduplicated in the order of Scopes.

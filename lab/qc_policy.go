@@ -26,7 +26,19 @@ type QCPolicy struct {
 	// CheckReview). A method sets it only where the lab's SOP allows one
 	// person to do both.
 	AllowSelfReview bool `json:"allow_self_review,omitempty"`
+	// Signatures is what approving a curve of the method takes: "" (a
+	// signed approval or the unsigned review route of a token),
+	// SignaturesApproval (a person's signed approval only) or
+	// SignaturesReviewAndApproval (a signed review, then a signed approval
+	// by another person, before results are releasable).
+	Signatures string `json:"signatures,omitempty"`
 }
+
+// The values of QCPolicy.Signatures besides "".
+const (
+	SignaturesApproval          = "approval"
+	SignaturesReviewAndApproval = "review_and_approval"
+)
 
 // DefaultQCPolicy returns the defaults: ±20 % verification tolerance (US EPA
 // SW-846 Method 8000D), only approved curves in force, no maximum age.
@@ -50,6 +62,11 @@ func (q QCPolicy) Check() error {
 	if !calib.Finite(q.MaxCurveAgeHours) || q.MaxCurveAgeHours < 0 || q.MaxCurveAgeHours > 24*366*10 {
 		return FieldError("/max_curve_age_hours", "must be a number of hours in (0, 87840], or absent for no limit")
 	}
+	switch q.Signatures {
+	case "", SignaturesApproval, SignaturesReviewAndApproval:
+	default:
+		return FieldError("/signatures", "must be %q or %q, or absent", SignaturesApproval, SignaturesReviewAndApproval)
+	}
 	return nil
 }
 
@@ -57,7 +74,7 @@ func (q QCPolicy) Check() error {
 func (q QCPolicy) Equal(o QCPolicy) bool {
 	return q.VerificationTolerancePct == o.VerificationTolerancePct &&
 		q.PendingCurvesInForce == o.PendingCurvesInForce && q.MaxCurveAgeHours == o.MaxCurveAgeHours &&
-		q.AllowSelfReview == o.AllowSelfReview
+		q.AllowSelfReview == o.AllowSelfReview && q.Signatures == o.Signatures
 }
 
 // MaxAge returns the maximum age of a curve in force, 0 for none.

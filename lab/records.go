@@ -192,10 +192,14 @@ type Result struct {
 type RunWriteStats struct{ Groups, Grouped, Alone int64 }
 
 // Session is a signed-in browser session of the QA pages: the token it was
-// opened with (scopes read afresh) and when it ends.
+// opened with, or the person (scopes read afresh), and when it ends.
 type Session struct {
-	Token     Principal
-	ExpiresAt time.Time
+	// Token is the session's principal: the token it was opened with, or
+	// the person who signed in with login and password (TokenID "", Owner
+	// "person:<login>", the scopes of the person's roles).
+	Token       Principal
+	PrintedName string // the person's full name; "" for a token's session
+	ExpiresAt   time.Time
 }
 
 // TrendFilter selects the curves of one instrument and analyte for a trend.
@@ -331,6 +335,9 @@ const (
 	CauseReview       = "curve.review"
 	CauseVerification = "curve.verification"
 	CauseExclusion    = "curve.exclusion"
+	// CauseWithdrawal: an approval signature was withdrawn and its curve
+	// returned to review.
+	CauseWithdrawal = "signature.withdraw"
 )
 
 // Feed page sizes.

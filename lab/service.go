@@ -155,6 +155,12 @@ func (s *Service) Review(ctx context.Context, p Principal, id, decision, reason 
 	if err := CheckFreeText("/reason", reason); err != nil {
 		return nil, err
 	}
+	if p.IsPerson() {
+		return nil, FieldError("/decision", "a person signed in with login and password approves or rejects by signing (meaning approval), not by an unsigned review")
+	}
+	if s.People.RequireSignedApproval {
+		return nil, FieldError("/decision", "%s (the lab requires signed approval on every method)", RuleSignedApproval)
+	}
 	return s.store.ReviewCurve(ctx, id, decision, reason, p.Actor())
 }
 
@@ -192,6 +198,21 @@ func (s *Service) AddSamples(ctx context.Context, p Principal, runID string, sam
 // SignIn exchanges a token's secret for a session of the QA pages.
 func (s *Service) SignIn(ctx context.Context, tokenSecret string, ttl time.Duration) (string, Principal, error) {
 	return s.store.CreateSession(ctx, tokenSecret, ttl)
+}
+
+// SignInPerson opens a session of the QA pages for the person whose login
+// and password c gives (the lockout counts a wrong password), of the lab's
+// configured session length.
+func (s *Service) SignInPerson(ctx context.Context, c Credentials) (string, *Person, error) {
+	person, err := s.Authenticate(ctx, c)
+	if err != nil {
+		return "", nil, err
+	}
+	secret, err := s.people.CreatePersonSession(ctx, person, s.People.Session())
+	if err != nil {
+		return "", nil, err
+	}
+	return secret, person, nil
 }
 
 // SignOut ends a session of the QA pages.

@@ -73,24 +73,25 @@ func (s *Service) SignCurve(ctx context.Context, p Principal, id string, c Crede
 	}, p.Actor())
 }
 
-// CurveSignatures returns curve id's signatures, each with whether it still
-// matches the curve's current content.
+// CurveSignatures returns the signatures on curve id (its review and
+// approval, the exclusion that made it, the release of its results), each
+// with whether it still matches the current content of what it signed.
 func (s *Service) CurveSignatures(ctx context.Context, id string) ([]Signature, []bool, error) {
 	curve, err := s.GetCurve(ctx, id)
 	if err != nil {
 		return nil, nil, err
 	}
-	_, sum, err := CanonicalCurve(curve)
+	sigs, err := s.people.ListSignatures(ctx, "", curve.ID)
 	if err != nil {
 		return nil, nil, err
 	}
-	sigs, err := s.people.ListSignatures(ctx, "curve", curve.ID)
+	sums, err := s.recordHashes(ctx, curve, sigs)
 	if err != nil {
 		return nil, nil, err
 	}
 	valid := make([]bool, len(sigs))
 	for i := range sigs {
-		valid[i] = SignatureValid(&sigs[i], sum)
+		valid[i] = SignatureValid(&sigs[i], sums[sigs[i].RecordType])
 	}
 	return sigs, valid, nil
 }

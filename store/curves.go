@@ -61,7 +61,7 @@ func (db *DB) GetCurve(ctx context.Context, id string) (*lab.Curve, error) {
 	)
 	summary, err := scanCurveSummary(db.Pool.QueryRow(ctx, `
 SELECT c.`+strings.ReplaceAll(curveColumns, ", ", ", c.")+`, c.report, r.decision, r.reason, r.actor, r.at
-FROM curves c LEFT JOIN reviews r ON r.curve_id = c.id
+FROM curves c LEFT JOIN reviews r ON r.curve_id = c.id AND r.withdrawn_at IS NULL
 WHERE c.id = $1`, id), &report, &decision, &reason, &actor, &at)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, lab.Errorf(lab.KindNotFound, "curve %s not found", id)
@@ -297,7 +297,7 @@ WHERE c.id = $1`, id, reviewer).Scan(&f.RunPostedBy, &revisionBy, &qc, &supersed
 	if err := json.Unmarshal(qc, &q); err != nil {
 		return nil, fmt.Errorf("store: decode qc of curve %s's method: %w", id, err)
 	}
-	f.RevisionBy, f.SupersededBy, f.AllowSelfReview = deref(revisionBy), deref(superseded), q.AllowSelfReview
+	f.RevisionBy, f.SupersededBy, f.AllowSelfReview, f.Signatures = deref(revisionBy), deref(superseded), q.AllowSelfReview, q.Signatures
 	f.RunPostedByParty, f.RevisionByParty, f.ReviewerParty = deref(postedParty), deref(revisionParty), deref(reviewerParty)
 	return f, nil
 }
@@ -318,7 +318,7 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 	}
 	var rv *lab.Review
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
-		rv, err = reviewCurveTx(ctx, tx, id, decision, status, reason, actor)
+		rv, err = reviewCurveTx(ctx, tx, id, decision, status, reason, actor, false)
 		return err
 	})
 	if err != nil {
@@ -327,9 +327,11 @@ func (db *DB) ReviewCurve(ctx context.Context, id, decision, reason, actor strin
 	return rv, nil
 }
 
-// reviewCurveTx is ReviewCurve's transition inside tx: the one review, the
-// status, its audit row and the results' release states.
-func reviewCurveTx(ctx context.Context, tx pgx.Tx, id, decision, status, reason, actor string) (*lab.Review, error) {
+// reviewCurveTx is ReviewCurve's transition inside tx: the one review in
+// effect, the status, its audit row and the results' release states. signed
+// says the review is an approval signature's; an unsigned review is refused
+// on a method that requires signatures (lab.CheckUnsignedReview).
+func reviewCurveTx(ctx context.Context, tx pgx.Tx, id, decision, status, reason, actor string, signed bool) (*lab.Review, error) {
 	reason = strings.TrimSpace(reason)
 	var rv *lab.Review
 	var current, verdict string
@@ -349,6 +351,11 @@ func reviewCurveTx(ctx context.Context, tx pgx.Tx, id, decision, status, reason,
 	}
 	if err := lab.CheckReview(*facts, actor); err != nil {
 		return nil, err
+	}
+	if !signed {
+		if err := lab.CheckUnsignedReview(*facts); err != nil {
+			return nil, err
+		}
 	}
 	if decision == lab.DecisionApprove && verdict == lab.VerdictFail && reason == "" {
 		return nil, lab.FieldError("/reason", "a curve that failed its acceptance checks can be approved only with a reason")

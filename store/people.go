@@ -22,8 +22,11 @@ const (
 	ActionPersonSignInFail  = "person.sign_in_failed"
 	ActionSignatureSign     = "signature.sign"
 	ActionSignatureWithdraw = "signature.withdraw"
-	entityPerson            = "person"
-	entitySignature         = "signature"
+	// ActionCurveReturnToReview: a withdrawn approval returned its curve to
+	// pending review.
+	ActionCurveReturnToReview = "curve.return_to_review"
+	entityPerson              = "person"
+	entitySignature           = "signature"
 )
 
 // PasswordParams is the Argon2id cost of new password hashes; tests lower it.
@@ -208,8 +211,9 @@ func (db *DB) Authenticate(ctx context.Context, c lab.Credentials, maxFailures i
 
 // RecordOwners returns the owners of the tokens that posted curve id's run
 // and made the curve (the same token for a run's own fit; the excluding
-// analyst's for an exclusion's revision). An actor that names no token
-// (bootstrap, older rows) is returned as it is.
+// analyst's for an exclusion's revision), and the people whose live
+// signature takes responsibility for the exclusion. An actor that names no
+// token (bootstrap, older rows) is returned as it is.
 func (db *DB) RecordOwners(ctx context.Context, curveID string) ([]string, error) {
 	id, err := parseID("curve", curveID)
 	if err != nil {
@@ -220,7 +224,10 @@ SELECT DISTINCT COALESCE(t.owner, a.actor)
 FROM curves c JOIN runs r ON r.id = c.run_id,
      LATERAL (VALUES (r.received_by), (c.created_by)) AS a(actor)
 LEFT JOIN tokens t ON a.actor LIKE 'token:%' AND t.id::text = substring(a.actor FROM '[0-9a-f-]{36}$')
-WHERE c.id = $1`, id)
+WHERE c.id = $1
+UNION
+SELECT 'person:' || s.login FROM signatures s
+WHERE s.record_type = 'exclusion' AND s.record_id = $1::text AND s.withdrawn_at IS NULL`, id)
 	if err != nil {
 		return nil, classify("record owners", err)
 	}
@@ -247,13 +254,10 @@ func scanSignature(r pgx.Row) (*lab.Signature, error) {
 // SignCurve stores a signature on a curve and, for an approval, the curve's
 // review (status, results' release states), in one transaction with their
 // audit rows. An approval of a method that needs a review first is refused
-// unless a live review signature of another person is on the curve.
+// unless a live review signature of another person on the same content is
+// on the curve (lab.CheckApprovalSignature).
 func (db *DB) SignCurve(ctx context.Context, in lab.SignatureInput, actor string) (*lab.Signature, error) {
-	curveID, err := parseID("curve", in.RecordID)
-	if err != nil {
-		return nil, err
-	}
-	id, err := newID()
+	curveID, id, err := newSignatureIDs(in)
 	if err != nil {
 		return nil, err
 	}
@@ -276,23 +280,30 @@ func (db *DB) SignCurve(ctx context.Context, in lab.SignatureInput, actor string
 			return classify("now", err)
 		}
 		if in.Meaning == lab.MeaningApproval {
+			facts, err := loadReviewFacts(ctx, tx, curveID, who)
+			if err != nil {
+				return err
+			}
+			rows, err := tx.Query(ctx, `SELECT login FROM signatures WHERE record_type = 'curve' AND record_id = $1
+AND meaning = 'review' AND withdrawn_at IS NULL AND content_hash = $2`, curveID, in.ContentHash[:])
+			if err != nil {
+				return classify("select review signatures", err)
+			}
+			reviewers, err := pgx.CollectRows(rows, pgx.RowTo[string])
+			if err != nil {
+				return classify("select review signatures", err)
+			}
+			if err := lab.CheckApprovalSignature(*facts, in.Decision, in.Person.Login, reviewers); err != nil {
+				return err
+			}
 			status := map[string]string{lab.DecisionApprove: lab.StatusApproved, lab.DecisionReject: lab.StatusRejected}[in.Decision]
-			if _, err := reviewCurveTx(ctx, tx, curveID, in.Decision, status, in.Reason, who); err != nil {
+			if _, err := reviewCurveTx(ctx, tx, curveID, in.Decision, status, in.Reason, who, true); err != nil {
 				return err
 			}
 		}
-		sig, err = scanSignature(tx.QueryRow(ctx, `
-INSERT INTO signatures (id, record_type, record_id, person_id, login, printed_name, meaning, decision, reason, signed_at, time_zone, content_hash, content)
-VALUES ($1, 'curve', $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12)
-RETURNING `+signatureColumns, id, curveID, in.Person.ID, in.Person.Login, in.Person.FullName, in.Meaning, in.Decision,
-			strings.TrimSpace(in.Reason), signedAt, in.TimeZone, in.ContentHash[:], in.Content))
-		if err != nil {
-			return classify("insert signature", err)
-		}
-		return writeAudit(ctx, tx, who, ActionSignatureSign, entityCurve, curveID, map[string]any{
-			"signature": id, "printed_name": in.Person.FullName, "meaning": in.Meaning, "decision": in.Decision,
-			"reason": sig.Reason, "content_sha256": fmt.Sprintf("%x", in.ContentHash), "via": actor,
-		})
+		in.RecordType, in.RecordID = lab.SubjectCurve, curveID
+		sig, err = insertSignature(ctx, tx, id, in, signedAt, actor)
+		return err
 	})
 	if err != nil {
 		return nil, classify("sign curve "+curveID, err)
@@ -300,10 +311,70 @@ RETURNING `+signatureColumns, id, curveID, in.Person.ID, in.Person.Login, in.Per
 	return sig, nil
 }
 
+// newSignatureIDs checks the signed curve's id and draws the new
+// signature's.
+func newSignatureIDs(in lab.SignatureInput) (curveID, id string, err error) {
+	if curveID, err = parseID("curve", in.RecordID); err != nil {
+		return "", "", err
+	}
+	id, err = newID()
+	return curveID, id, err
+}
+
+// insertSignature stores signature in as id, signed at signedAt, with its
+// audit row on the curve (every subject's record id is a curve's).
+func insertSignature(ctx context.Context, tx pgx.Tx, id string, in lab.SignatureInput, signedAt time.Time, actor string) (*lab.Signature, error) {
+	sig, err := scanSignature(tx.QueryRow(ctx, `
+INSERT INTO signatures (id, record_type, record_id, person_id, login, printed_name, meaning, decision, reason, signed_at, time_zone, content_hash, content)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13)
+RETURNING `+signatureColumns, id, in.RecordType, in.RecordID, in.Person.ID, in.Person.Login, in.Person.FullName, in.Meaning, in.Decision,
+		strings.TrimSpace(in.Reason), signedAt, in.TimeZone, in.ContentHash[:], in.Content))
+	if err != nil {
+		return nil, classify("insert signature", err)
+	}
+	return sig, writeAudit(ctx, tx, lab.OwnerPerson+in.Person.Login, ActionSignatureSign, entityCurve, in.RecordID, map[string]any{
+		"signature": id, "subject": in.RecordType, "printed_name": in.Person.FullName, "meaning": in.Meaning, "decision": in.Decision,
+		"reason": sig.Reason, "content_sha256": fmt.Sprintf("%x", in.ContentHash), "via": actor,
+	})
+}
+
+// SignRecord stores an exclusion or release signature on curve
+// in.RecordID with its audit row, in one transaction. A release is stored
+// only while the curve (locked) is approved, so that it cannot race the
+// withdrawal of the approval.
+func (db *DB) SignRecord(ctx context.Context, in lab.SignatureInput, actor string) (*lab.Signature, error) {
+	curveID, id, err := newSignatureIDs(in)
+	if err != nil {
+		return nil, err
+	}
+	in.RecordID = curveID
+	var sig *lab.Signature
+	err = db.inTx(ctx, func(tx pgx.Tx) error {
+		var status string
+		var signedAt time.Time
+		err := tx.QueryRow(ctx, `SELECT status, now() FROM curves WHERE id = $1 FOR UPDATE`, curveID).Scan(&status, &signedAt)
+		if errors.Is(err, pgx.ErrNoRows) {
+			return lab.Errorf(lab.KindNotFound, "curve %s not found", curveID)
+		}
+		if err != nil {
+			return classify("select curve", err)
+		}
+		if in.RecordType == lab.SubjectRelease && status != lab.StatusApproved {
+			return lab.Errorf(lab.KindConflict, "curve %s is %s: its results are released only once it is approved", curveID, status)
+		}
+		sig, err = insertSignature(ctx, tx, id, in, signedAt, actor)
+		return err
+	})
+	if err != nil {
+		return nil, classify("sign "+in.RecordType+" of curve "+curveID, err)
+	}
+	return sig, nil
+}
+
 // ListSignatures returns a record's signatures, withdrawn ones too, in the
-// order they were made.
+// order they were made; recordType "" returns those of every type.
 func (db *DB) ListSignatures(ctx context.Context, recordType, recordID string) ([]lab.Signature, error) {
-	rows, err := db.Pool.Query(ctx, `SELECT `+signatureColumns+` FROM signatures WHERE record_type = $1 AND record_id = $2 ORDER BY signed_at, id`,
+	rows, err := db.Pool.Query(ctx, `SELECT `+signatureColumns+` FROM signatures WHERE ($1 = '' OR record_type = $1) AND record_id = $2 ORDER BY signed_at, id`,
 		recordType, recordID)
 	if err != nil {
 		return nil, classify("list signatures", err)
@@ -340,20 +411,90 @@ func (db *DB) WithdrawSignature(ctx context.Context, id string, by *lab.Person, 
 			return lab.Errorf(lab.KindForbidden, "only the signer or a %s may withdraw a signature", lab.RoleQAApprover)
 		}
 		who := "person:" + by.Login
+		if sig.RecordType == entityCurve && sig.Meaning == lab.MeaningReview {
+			if err := checkReviewWithdrawal(ctx, tx, sig); err != nil {
+				return err
+			}
+		}
 		sig, err = scanSignature(tx.QueryRow(ctx, `
 UPDATE signatures SET withdrawn_at = now(), withdrawn_by = $2, withdrawal_reason = $3 WHERE id = $1
 RETURNING `+signatureColumns, id, by.FullName+" ("+by.Login+")", reason))
 		if err != nil {
 			return classify("withdraw signature", err)
 		}
-		return writeAudit(ctx, tx, who, ActionSignatureWithdraw, sig.RecordType, sig.RecordID, map[string]any{
+		if err := writeAudit(ctx, tx, who, ActionSignatureWithdraw, sig.RecordType, sig.RecordID, map[string]any{
 			"signature": id, "reason": reason, "meaning": sig.Meaning, "signer": sig.PrintedName, "via": actor,
-		})
+		}); err != nil {
+			return err
+		}
+		if sig.RecordType == entityCurve && sig.Meaning == lab.MeaningApproval {
+			return returnToReview(ctx, tx, sig, who, reason)
+		}
+		return nil
 	})
 	if err != nil {
 		return nil, classify("withdraw signature "+id, err)
 	}
 	return sig, nil
+}
+
+// checkReviewWithdrawal refuses to withdraw review signature sig while a
+// live approval made after it rests on it: on a method that requires a
+// review before approval (lab.SignaturesReviewAndApproval), the approval
+// is withdrawn first. Elsewhere a review signature is withdrawn freely.
+func checkReviewWithdrawal(ctx context.Context, tx pgx.Tx, sig *lab.Signature) error {
+	facts, err := loadReviewFacts(ctx, tx, sig.RecordID, "")
+	if err != nil {
+		return err
+	}
+	if facts.Signatures != lab.SignaturesReviewAndApproval {
+		return nil
+	}
+	var later int
+	err = tx.QueryRow(ctx, `SELECT count(*) FROM signatures WHERE record_type = 'curve' AND record_id = $1
+AND meaning = 'approval' AND decision = 'approve' AND withdrawn_at IS NULL AND signed_at >= $2`, sig.RecordID, sig.SignedAt).Scan(&later)
+	if err != nil {
+		return classify("select approvals", err)
+	}
+	if later > 0 {
+		return lab.Errorf(lab.KindConflict, "%s: an approval signature on curve %s rests on this review; withdraw the approval first", lab.RuleReviewBeforeApproval, sig.RecordID)
+	}
+	return nil
+}
+
+// returnToReview undoes the review that the approval signature sig made, in
+// tx: the review is withdrawn (the row stays), the curve goes back to
+// pending_review, its results' release states follow (releasable results
+// become provisional, or withheld when the curve failed its checks) with
+// one event each, and the return is audited. A curve whose review in
+// effect is not the signer's (already returned) is left as it is.
+func returnToReview(ctx context.Context, tx pgx.Tx, sig *lab.Signature, who, reason string) error {
+	var status string
+	err := tx.QueryRow(ctx, `SELECT status FROM curves WHERE id = $1 FOR UPDATE`, sig.RecordID).Scan(&status)
+	if err != nil {
+		return classify("select curve "+sig.RecordID, err)
+	}
+	tag, err := tx.Exec(ctx, `UPDATE reviews SET withdrawn_at = now(), withdrawn_by = $2, withdrawal_reason = $3
+WHERE curve_id = $1 AND withdrawn_at IS NULL AND actor = $4`, sig.RecordID, who, reason, lab.OwnerPerson+sig.Login)
+	if err != nil {
+		return classify("withdraw review", err)
+	}
+	if tag.RowsAffected() == 0 || status == lab.StatusPendingReview {
+		return nil
+	}
+	if _, err := tx.Exec(ctx, `UPDATE curves SET status = 'pending_review', reviewed_at = NULL, reviewed_by = NULL WHERE id = $1`, sig.RecordID); err != nil {
+		return classify("return curve to review", err)
+	}
+	if err := writeAudit(ctx, tx, who, ActionCurveReturnToReview, entityCurve, sig.RecordID, map[string]any{
+		"signature": sig.ID, "reason": reason, "from": status, "to": lab.StatusPendingReview,
+	}); err != nil {
+		return err
+	}
+	events := &eventBuffer{}
+	if _, err := refreshCurveResults(ctx, tx, sig.RecordID, lab.CauseWithdrawal, events); err != nil {
+		return err
+	}
+	return flushEvents(ctx, tx, events)
 }
 
 // SearchAudit returns audit rows by person and by record, newest first, at

@@ -20,7 +20,7 @@ func loadCurveFacts(ctx context.Context, tx pgx.Tx, id string) (*lab.CurveFacts,
 	err := tx.QueryRow(ctx, `
 SELECT c.status, c.verdict, c.slope IS NOT NULL, c.failed_checks, c.reviewed_by, r.reason,
        (SELECT e.curve_id::text FROM exclusions e WHERE e.revision_of = c.id)
-FROM curves c LEFT JOIN reviews r ON r.curve_id = c.id
+FROM curves c LEFT JOIN reviews r ON r.curve_id = c.id AND r.withdrawn_at IS NULL
 WHERE c.id = $1`, id).Scan(&f.Status, &f.Verdict, &f.Fitted, &f.FailedChecks, &reviewer, &reason, &revision)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, lab.Errorf(lab.KindNotFound, "curve %s not found", id)

@@ -313,6 +313,8 @@ func TestEvidenceIsImmutable(t *testing.T) {
 		{"re-review a curve", `UPDATE curves SET status = 'approved' WHERE status = 'rejected'`},
 		{"delete curves", `DELETE FROM curves`},
 		{"update reviews", `UPDATE reviews SET reason = ''`},
+		{"return a curve to review without withdrawing its review", `UPDATE curves SET status = 'pending_review', reviewed_at = NULL, reviewed_by = NULL WHERE status = 'rejected'`},
+		{"withdraw a review with another change", `UPDATE reviews SET withdrawn_at = now(), withdrawn_by = 'x', withdrawal_reason = 'y', reason = ''`},
 		{"delete reviews", `DELETE FROM reviews`},
 		{"update methods", `UPDATE methods SET model = 'quadratic'`},
 	}

@@ -92,3 +92,57 @@ func TestSessions(t *testing.T) {
 		wantKind(t, err, lab.KindNotFound)
 	})
 }
+
+// A person signs in with login and password: the session carries the
+// scopes of the person's roles and a person's actor, and ends when the
+// person is disabled; a wrong password opens none and counts a failure.
+func TestPersonSessions(t *testing.T) {
+	ctx := context.Background()
+	db := newDB(t)
+	svc := lab.NewService(db)
+	svc.People.SessionTTL = 2 * time.Hour
+	mustPerson(t, svc, "rosa", "Rosa Reviewer", lab.RoleReviewer)
+	if _, _, err := svc.SignInPerson(ctx, lab.Credentials{Login: "rosa", Password: "wrong-password"}); lab.KindOf(err) != lab.KindForbidden {
+		t.Fatalf("wrong password: %v, want forbidden", err)
+	}
+	secret, person, err := svc.SignInPerson(ctx, creds("rosa"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if person.FailedAttempts != 0 {
+		t.Errorf("a good password left %d failures", person.FailedAttempts)
+	}
+	s, err := db.LookupSession(ctx, secret)
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := s.Token
+	if !p.IsPerson() || p.Actor() != "person:rosa" || s.PrintedName != "Rosa Reviewer" ||
+		!p.Has(lab.ScopeCurvesReview) || !p.Has(lab.ScopeResultsRead) || p.Has(lab.ScopeRunsWrite) || p.Has(lab.ScopeAdmin) {
+		t.Errorf("person session %+v (actor %s)", s, p.Actor())
+	}
+	var lifetime time.Duration
+	if err := db.Pool.QueryRow(ctx, `SELECT EXTRACT(EPOCH FROM expires_at - created_at)::bigint * 1000000000 FROM ui_sessions WHERE id_hash = sha256($1::bytea)`,
+		[]byte(secret)).Scan(&lifetime); err != nil {
+		t.Fatal(err)
+	}
+	if lifetime != 2*time.Hour {
+		t.Errorf("session lifetime %s, want the configured 2h", lifetime)
+	}
+	if _, err := svc.DisablePerson(ctx, lab.Principal{Name: "admin", TokenID: "t"}, "rosa"); err != nil {
+		t.Fatal(err)
+	}
+	_, err = db.LookupSession(ctx, secret)
+	wantKind(t, err, lab.KindNotFound)
+	if err := db.DeleteSession(ctx, secret); err != nil {
+		t.Fatal(err)
+	}
+	var n int
+	if err := db.Pool.QueryRow(ctx, `SELECT count(*) FROM audit WHERE actor = 'person:rosa' AND action IN ($1, $2)`,
+		store.ActionSessionCreate, store.ActionSessionDelete).Scan(&n); err != nil {
+		t.Fatal(err)
+	}
+	if n != 2 {
+		t.Errorf("%d sign-in and sign-out audit rows of rosa, want 2", n)
+	}
+}

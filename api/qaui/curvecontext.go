@@ -149,7 +149,7 @@ func standardRows(r *calib.Report, pol calib.Policy) []standardRow {
 		seen[p.Level]++
 		row := standardRow{PointResult: p, Replicate: seen[p.Level]}
 		if total > 0 && !p.Excluded {
-			row.Share = strconv.FormatFloat(100*p.Weight/total, 'f', 1, 64)
+			row.Share = sigFig(100*p.Weight/total, 3)
 		}
 		if p.X != 0 && !p.Excluded && len(r.Coefficients) > 0 {
 			tol := pol.BackCalcTolerancePct
@@ -157,7 +157,7 @@ func standardRows(r *calib.Report, pol calib.Policy) []standardRow {
 				tol = pol.BackCalcLowTolerancePct
 			}
 			row.Judged = true
-			row.Limit = "±" + g4(tol) + " %"
+			row.Limit = "±" + strconv.FormatFloat(tol, 'g', -1, 64) + " %"
 			row.Pass = p.HasRelativeError && math.Abs(p.RelativeErrorPct) <= tol
 		}
 		rows = append(rows, row)
@@ -170,11 +170,15 @@ func compare(cv *lab.Curve, before lab.CurveSummary) *comparison {
 	out := &comparison{Curve: before}
 	row := func(name, unit string, this, prev *float64) {
 		r := comparisonRow{Name: name, Unit: unit, This: "—", Before: "—", Change: "—"}
+		figures := 4
+		if name == "R²" {
+			figures = 6 // 0.99998 and 0.99991 differ; four figures would show 1.000 twice
+		}
 		if this != nil {
-			r.This = g4(*this)
+			r.This = sigFig(*this, figures)
 		}
 		if prev != nil {
-			r.Before = g4(*prev)
+			r.Before = sigFig(*prev, figures)
 		}
 		if this != nil && prev != nil && *prev != 0 {
 			r.Change = strconv.FormatFloat(100*(*this-*prev)/math.Abs(*prev), 'f', 1, 64) + " %"

@@ -32,9 +32,10 @@ var uiFiles embed.FS
 // uiPages are the page templates, each parsed with the layout.
 var uiPages = func() map[string]*template.Template {
 	funcs := template.FuncMap{
-		"g4":         func(v float64) string { return strconv.FormatFloat(v, 'g', 4, 64) },
+		"g4":         g4,
 		"g6":         func(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) },
-		"g3":         func(v float64) string { return strconv.FormatFloat(v, 'g', 3, 64) },
+		"g3":         func(v float64) string { return sigFig(v, 3) },
+		"num":        func(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }, // a setting, as given
 		"pct100":     func(v float64) string { return strconv.FormatFloat(100*v, 'f', 1, 64) },
 		"pct":        func(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) },
 		"when":       func(t time.Time) string { return t.UTC().Format("2006-01-02 15:04:05 UTC") },
@@ -559,7 +560,25 @@ func trendAltText(t *lab.Trend) string {
 	return txt + " " + curveplot.Footer
 }
 
-func g4(v float64) string { return strconv.FormatFloat(v, 'g', 4, 64) }
+func g4(v float64) string { return sigFig(v, 4) }
+
+// sigFig writes v to n significant figures as a person reads a number on a
+// page: in plain decimals (16240, 0.004361), never in e-notation between
+// 1e-6 and 1e12; outside that range, and for NaN and infinities, as Go's %g
+// does. The JSON keeps full precision.
+func sigFig(v float64, n int) string {
+	a := math.Abs(v)
+	if v == 0 || math.IsNaN(v) || math.IsInf(v, 0) || a < 1e-6 || a >= 1e12 {
+		return strconv.FormatFloat(v, 'g', n, 64)
+	}
+	// Round first: 9.9996 to 4 figures is 10.00, whose exponent is one more.
+	r, _ := strconv.ParseFloat(strconv.FormatFloat(v, 'e', n-1, 64), 64)
+	exp := int(math.Floor(math.Log10(math.Abs(r))))
+	if dec := n - 1 - exp; dec > 0 {
+		return strconv.FormatFloat(r, 'f', dec, 64)
+	}
+	return strconv.FormatFloat(r, 'f', 0, 64)
+}
 
 // curveEquationText writes a non-linear curve's equation and its named
 // parameters (6 significant digits) and, for power_of_mean or 1/s², θ.

@@ -25,15 +25,31 @@ import (
 const (
 	uiSessionCookie = "ck_session"
 	uiSignInCookie  = "ck_signin"
-	uiSessionTTL    = 8 * time.Hour
 	uiCSRFField     = "csrf_token"
 )
 
 // uiSession is the signed-in user of a QA page request.
 type uiSession struct {
-	Principal lab.Principal
-	secret    string // the cookie's session secret
-	CSRF      string // the synchronizer token of this session's forms
+	Principal   lab.Principal
+	PrintedName string // the person's full name, for a session opened with login and password
+	secret      string // the cookie's session secret
+	CSRF        string // the synchronizer token of this session's forms
+}
+
+// IsPerson reports whether a person signed in with login and password.
+func (u *uiSession) IsPerson() bool { return u != nil && u.Principal.IsPerson() }
+
+// Login is the signed-in person's login: the session's person, or the
+// person who owns the session's token; "" otherwise.
+func (u *uiSession) Login() string {
+	if u == nil {
+		return ""
+	}
+	login, _ := strings.CutPrefix(u.Principal.Owner, lab.OwnerPerson)
+	if login == u.Principal.Owner {
+		return ""
+	}
+	return login
 }
 
 // Has reports whether the session's token holds any of scopes.
@@ -99,7 +115,7 @@ func (s *Pages) uiSessionMiddleware(next echo.HandlerFunc) echo.HandlerFunc {
 			switch {
 			case err == nil:
 				u := &uiSession{secret: ck.Value, CSRF: csrfFor(ck.Value),
-					Principal: sess.Token}
+					Principal: sess.Token, PrintedName: sess.PrintedName}
 				c.Set("ui_session", u)
 				req := c.Request()
 				c.SetRequest(req.WithContext(s.WithPrincipal(req.Context(), u.Principal)))
@@ -169,10 +185,14 @@ func (s *Pages) renderSignIn(c echo.Context, status int, problem string) error {
 	setCookie(c, uiSignInCookie, tok, 600)
 	return s.render(c, status, "signin", pageData{Title: "Sign in", Form: map[string]string{
 		"csrf": tok, "next": safeNext(c.QueryParam("next")) + "", "problem": problem,
+		"hours": strconv.FormatFloat(s.Lab.People.Session().Hours(), 'g', 4, 64),
 	}})
 }
 
-// signIn exchanges an API token for a session cookie.
+// signIn opens a session: a person with login and password (21 CFR
+// 11.200(a)(1)(i): the first signing of a session uses both), or an API
+// token exchanged for a session cookie. Either session lasts the lab's
+// configured length (lab.PeopleConfig.SessionTTL).
 func (s *Pages) signIn(c echo.Context) error {
 	ck, err := c.Cookie(uiSignInCookie)
 	if err != nil || !sameToken(c.FormValue(uiCSRFField), ck.Value) {
@@ -181,20 +201,34 @@ func (s *Pages) signIn(c echo.Context) error {
 	if secs := s.AuthFailureWait(c); secs > 0 {
 		return s.Error(c, http.StatusTooManyRequests, "Too many failed sign-ins from this address. Wait "+strconv.Itoa(secs)+" s and try again.")
 	}
-	token := strings.TrimSpace(c.FormValue("token"))
-	if !s.ValidToken(token) {
-		return s.renderSignIn(c, http.StatusUnauthorized, "Enter an API token.")
-	}
-	secret, _, err := s.Lab.SignIn(c.Request().Context(), token, uiSessionTTL)
-	if err != nil {
-		if lab.KindOf(err) == lab.KindNotFound {
+	ttl := s.Lab.People.Session()
+	var secret string
+	if login := strings.TrimSpace(c.FormValue("login")); login != "" || c.FormValue("password") != "" {
+		secret, _, err = s.Lab.SignInPerson(c.Request().Context(), lab.Credentials{Login: login, Password: c.FormValue("password")})
+		if err != nil {
+			msg, ok := formProblem(err)
+			if !ok {
+				return err
+			}
 			s.AuthFailed(c)
-			return s.renderSignIn(c, http.StatusUnauthorized, "That token is unknown or revoked.")
+			return s.renderSignIn(c, http.StatusUnauthorized, msg)
 		}
-		return err
+	} else {
+		token := strings.TrimSpace(c.FormValue("token"))
+		if !s.ValidToken(token) {
+			return s.renderSignIn(c, http.StatusUnauthorized, "Enter your login and password, or an API token.")
+		}
+		secret, _, err = s.Lab.SignIn(c.Request().Context(), token, ttl)
+		if err != nil {
+			if lab.KindOf(err) == lab.KindNotFound {
+				s.AuthFailed(c)
+				return s.renderSignIn(c, http.StatusUnauthorized, "That token is unknown or revoked.")
+			}
+			return err
+		}
 	}
 	setCookie(c, uiSignInCookie, "", -1)
-	setCookie(c, uiSessionCookie, secret, int(uiSessionTTL/time.Second))
+	setCookie(c, uiSessionCookie, secret, int(ttl/time.Second))
 	return c.Redirect(http.StatusSeeOther, safeNext(c.FormValue("next")))
 }
 

@@ -309,7 +309,7 @@ func PDF(in *Input) ([]byte, error) {
 	}
 	for i, s := range in.Signatures {
 		f.SetFont("sans", "B", 8.5)
-		d.para(s.PrintedName + " — " + s.Meaning)
+		d.para(s.PrintedName + " — " + s.What())
 		f.SetFont("sans", "", 8.5)
 		line := "Signed " + s.SignedAt.UTC().Format("2006-01-02 15:04:05 UTC") + " (" + s.Local().Format("2006-01-02 15:04:05 MST") + ", " + s.TimeZone + ")"
 		if s.Decision != "" {

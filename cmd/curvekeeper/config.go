@@ -44,6 +44,12 @@ type config struct {
 	// person's account.
 	LabZone          *time.Location
 	MaxFailedSignIns int
+	// SessionTTL is how long a session of the QA pages lasts (at most
+	// lab.MaxSessionTTL).
+	SessionTTL time.Duration
+	// RequireSignedApproval refuses a token's unsigned review on every
+	// method (lab.PeopleConfig.RequireSignedApproval).
+	RequireSignedApproval bool
 	// ClockSkew is how far ahead of its receipt a claimed measurement time
 	// may lie (lab.DefaultFutureSkew unless set).
 	ClockSkew time.Duration
@@ -97,6 +103,9 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 	maxFailed := fs.Int("max-failed-sign-ins", 0, "wrong passwords in a row that lock a person's account; 0 means CURVEKEEPER_MAX_FAILED_SIGN_INS or 5")
 	checkEvery := fs.String("replica-check-interval", env("CURVEKEEPER_REPLICA_CHECK_INTERVAL", "1s"), "how often the service checks whether its database is a standby and how far replicas lag (CURVEKEEPER_REPLICA_CHECK_INTERVAL)")
 	clockSkew := fs.String("clock-skew", env("CURVEKEEPER_CLOCK_SKEW", "24h"), "how far ahead of its receipt a run's, sample's or verification's time may lie (CURVEKEEPER_CLOCK_SKEW)")
+	fs.BoolVar(&cfg.RequireSignedApproval, "require-signed-approval", env("CURVEKEEPER_REQUIRE_SIGNED_APPROVAL", "") == "true",
+		"approve or reject curves only by a person's electronic signature on every method: POST /v1/curves/{id}/review is refused (CURVEKEEPER_REQUIRE_SIGNED_APPROVAL=true)")
+	sessionTTL := fs.String("session-length", env("CURVEKEEPER_SESSION_LENGTH", "8h"), "how long a sign-in to the QA pages lasts, at most 24h (CURVEKEEPER_SESSION_LENGTH)")
 	cfg.BootstrapToken = getenv("CURVEKEEPER_BOOTSTRAP_TOKEN")
 	// Flags may come before or after positional arguments ("migrate down 1
 	// --database-url …"): the flag package stops at the first positional one,
@@ -139,6 +148,7 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 		{"--replica-max-lag", *maxLag, &cfg.MaxReplicaLag},
 		{"--replica-check-interval", *checkEvery, &cfg.CheckInterval},
 		{"--clock-skew", *clockSkew, &cfg.ClockSkew},
+		{"--session-length", *sessionTTL, &cfg.SessionTTL},
 	}
 	for _, d := range durations {
 		v, err := time.ParseDuration(d.in)
@@ -151,6 +161,9 @@ func parseConfig(name string, args []string, getenv func(string) string, stderr 
 		if u = strings.TrimSpace(u); u != "" {
 			cfg.ReadURLs = append(cfg.ReadURLs, u)
 		}
+	}
+	if cfg.SessionTTL > lab.MaxSessionTTL {
+		return cfg, nil, &usageError{fmt.Sprintf("--session-length %s: at most %s", cfg.SessionTTL, lab.MaxSessionTTL)}
 	}
 	if len(cfg.ReadURLs) > 0 && cfg.DatabaseURL == "" {
 		return cfg, nil, &usageError{"--database-read-url needs --database-url: read replicas are standbys of a primary server, not of the private cluster"}

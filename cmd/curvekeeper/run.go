@@ -243,7 +243,8 @@ func serve(ctx context.Context, cfg config, stdout, stderr io.Writer) error {
 		rateLimit = -1 // off
 	}
 	svc := lab.NewService(db, lab.WithFutureSkew(cfg.ClockSkew))
-	svc.People = lab.PeopleConfig{MaxFailedSignIns: cfg.MaxFailedSignIns, Zone: cfg.LabZone}
+	svc.People = lab.PeopleConfig{MaxFailedSignIns: cfg.MaxFailedSignIns, Zone: cfg.LabZone, SessionTTL: cfg.SessionTTL,
+		RequireSignedApproval: cfg.RequireSignedApproval}
 	srv, err := api.New(api.Config{BodyLimit: cfg.BodyLimit, RequestTimeout: cfg.RequestTimeout,
 		RateLimit: rateLimit, RateBurst: cfg.RateBurst}, svc, log)
 	if err != nil {
