@@ -311,7 +311,6 @@ type PeopleStore interface {
 	SignCurve(ctx context.Context, in SignatureInput, actor string) (*Signature, error)
 	ListSignatures(ctx context.Context, recordType, recordID string) ([]Signature, error)
 	WithdrawSignature(ctx context.Context, id string, by *Person, reason, actor string) (*Signature, error)
-	SearchAudit(ctx context.Context, f AuditFilter) ([]AuditEvent, error)
 }
 
 // AuditFilter selects audit rows by person (login) and by record (type and
