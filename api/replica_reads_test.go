@@ -255,6 +255,15 @@ func TestLagTolerantReadsGoToReplica(t *testing.T) {
 	})
 
 	t.Run("over the bound: served by the primary", func(t *testing.T) {
+		// A write the paused standby does not replay; the next check sees
+		// the primary ahead, and lag counts from there.
+		e.postJSON(t, e.admin, "/v1/tokens", map[string]any{"name": "lag-start", "scopes": []string{"results:read"}})
+		if _, err := e.pair.Primary.CurrentLSN(ctx); err != nil {
+			t.Fatal(err)
+		}
+		if err := e.db.Refresh(ctx); err != nil {
+			t.Fatal(err)
+		}
 		e.clock.Advance(4 * time.Second)
 		if err := e.db.Refresh(ctx); err != nil {
 			t.Fatal(err)
