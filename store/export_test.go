@@ -79,3 +79,8 @@ func HotStatements() []PlanCase {
 		{"recent approved slopes", sqlRecentApprovedSlopes, []any{"ic-1", "nitrate", time.Now(), 20}},
 	}
 }
+
+// TrendSubjectsUpTo is TrendSubjects counting each pair's curves up to max.
+func TrendSubjectsUpTo(ctx context.Context, db *DB, max int) ([]lab.TrendSubject, error) {
+	return db.trendSubjects(ctx, max)
+}

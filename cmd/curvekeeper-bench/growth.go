@@ -123,6 +123,19 @@ func (h *harness) growth(ctx context.Context) error {
 				return err
 			}
 		}},
+		// What TrendSubjects ran until it skipped through the index: shown
+		// for the before and after in one run.
+		{"growth_trend_subjects_groupby", "GROUP BY over every curve (TrendSubjects before)", func(s *growthSide, _ int) func(context.Context, int) error {
+			return func(ctx context.Context, _ int) error {
+				rows, err := s.db.Pool.Query(ctx, `SELECT instrument, analyte, count(*), max(acquired_at) FROM curves
+GROUP BY instrument, analyte ORDER BY instrument, analyte LIMIT 500`)
+				if err != nil {
+					return err
+				}
+				rows.Close()
+				return rows.Err()
+			}
+		}},
 	}
 	for _, op := range ops {
 		var rs [2]result
