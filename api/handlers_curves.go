@@ -36,7 +36,7 @@ func (s *Server) ListCurves(ctx context.Context, req oapi.ListCurvesRequestObjec
 	if err := lab.CheckQueryTimes("from", f.From, "to", f.To); err != nil {
 		return nil, err
 	}
-	page, err := s.reads(ctx).ListCurves(ctx, f) // history tolerates the replicas' lag
+	page, err := s.reading(ctx).ListCurves(ctx, f) // history tolerates the replicas' lag
 	if err != nil {
 		return nil, err
 	}
@@ -58,31 +58,35 @@ func (s *Server) curve(ctx context.Context, id string) (*lab.Curve, error) {
 	if c, ok := s.curves.get(id); ok {
 		return c, nil
 	}
-	c, err := s.lab.GetCurve(ctx, id)
-	if err != nil {
-		return nil, err
-	}
-	s.curves.put(c)
-	return c, nil
+	return s.freshCurve(ctx, id)
 }
 
-// freshCurve reads a curve from the database and refreshes the cache.
+// freshCurve reads a curve from the database and refreshes the cache. In a
+// GET it may come from a read replica (byID), with a review status up to
+// the lag bound old, as a cached copy's may be.
 func (s *Server) freshCurve(ctx context.Context, id string) (*lab.Curve, error) {
-	c, err := s.lab.GetCurve(ctx, id)
+	c, _, err := s.curveFrom(ctx, id)
+	return c, err
+}
+
+// curveFrom is freshCurve that also returns the service that answered, for
+// the reads that follow.
+func (s *Server) curveFrom(ctx context.Context, id string) (*lab.Curve, *lab.Service, error) {
+	c, rd, err := byID(ctx, s, func(rd *lab.Service) (*lab.Curve, error) { return rd.GetCurve(ctx, id) })
 	if err != nil {
-		return nil, err
+		return nil, nil, err
 	}
 	s.curves.put(c)
-	return c, nil
+	return c, rd, nil
 }
 
 // GetCurve returns a curve with its fit, checks and limits.
 func (s *Server) GetCurve(ctx context.Context, req oapi.GetCurveRequestObject) (oapi.GetCurveResponseObject, error) {
-	c, err := s.freshCurve(ctx, req.ID.String())
+	c, rd, err := s.curveFrom(ctx, req.ID.String())
 	if err != nil {
 		return nil, err
 	}
-	out, err := s.curveWithExclusion(ctx, c)
+	out, err := s.curveWithExclusion(ctx, rd, c)
 	if err != nil {
 		return nil, err
 	}
@@ -174,7 +178,7 @@ func (s *Server) ReviewCurve(ctx context.Context, req oapi.ReviewCurveRequestObj
 
 // GetCurveAudit returns the audit trail of a curve and of its run.
 func (s *Server) GetCurveAudit(ctx context.Context, req oapi.GetCurveAuditRequestObject) (oapi.GetCurveAuditResponseObject, error) {
-	events, err := s.lab.ListAudit(ctx, req.ID.String())
+	events, err := s.curveAudit(ctx, req.ID.String())
 	if err != nil {
 		return nil, err
 	}
@@ -183,6 +187,12 @@ func (s *Server) GetCurveAudit(ctx context.Context, req oapi.GetCurveAuditReques
 		out.Events = append(out.Events, oapi.AuditEvent{At: oapi.NewTimestamp(e.At), Actor: e.Actor, Action: e.Action, Detail: auditText(e)})
 	}
 	return out, nil
+}
+
+// curveAudit reads a curve's audit trail, from a read replica in a GET.
+func (s *Server) curveAudit(ctx context.Context, id string) ([]lab.AuditEvent, error) {
+	events, _, err := byID(ctx, s, func(rd *lab.Service) ([]lab.AuditEvent, error) { return rd.ListAudit(ctx, id) })
+	return events, err
 }
 
 // auditText renders an audit event's detail for people: the entity and its

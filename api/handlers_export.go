@@ -62,12 +62,12 @@ func preferred(ctx context.Context, offers ...string) string {
 
 // runResultsAs answers a run's results as FHIR or CSV (see the spec of
 // getRunResults); ok false when the caller asked for neither.
-func (s *Server) runResultsAs(ctx context.Context, runID string, results []lab.Result) (oapi.GetRunResultsResponseObject, bool, error) {
+func (s *Server) runResultsAs(ctx context.Context, rd *lab.Service, runID string, results []lab.Result) (oapi.GetRunResultsResponseObject, bool, error) {
 	media := preferred(ctx, mediaFHIR, mediaCSV, mediaHL7)
 	if media == "" {
 		return nil, false, nil
 	}
-	run, err := s.lab.GetRun(ctx, runID)
+	run, err := rd.GetRun(ctx, runID)
 	if err != nil {
 		return nil, true, err
 	}

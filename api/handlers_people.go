@@ -137,7 +137,7 @@ func (s *Server) SearchAudit(ctx context.Context, req oapi.SearchAuditRequestObj
 	if req.Params.Limit != nil {
 		f.Limit = *req.Params.Limit
 	}
-	events, err := s.lab.SearchAudit(ctx, f)
+	events, err := s.reading(ctx).SearchAudit(ctx, f)
 	if err != nil {
 		return nil, err
 	}

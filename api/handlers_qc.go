@@ -76,20 +76,21 @@ func (s *Server) CreateExclusion(ctx context.Context, req oapi.CreateExclusionRe
 	if err != nil {
 		return nil, err
 	}
-	out, err := s.curveWithExclusion(ctx, rc)
+	out, err := s.curveWithExclusion(ctx, s.lab, rc)
 	if err != nil {
 		return nil, err
 	}
 	return oapi.CreateExclusion201JSONResponse{Body: out, Headers: oapi.CreateExclusion201ResponseHeaders{Location: "/v1/curves/" + revID}}, nil
 }
 
-// curveWithExclusion renders a curve and, for a revision, why it was made.
-func (s *Server) curveWithExclusion(ctx context.Context, c *lab.Curve) (oapi.Curve, error) {
+// curveWithExclusion renders a curve and, for a revision, why it was made
+// (read from rd, where the curve was read).
+func (s *Server) curveWithExclusion(ctx context.Context, rd *lab.Service, c *lab.Curve) (oapi.Curve, error) {
 	out := curveOut(c)
 	if c.RevisionOf == "" {
 		return out, nil
 	}
-	e, err := s.lab.GetExclusion(ctx, c.ID)
+	e, err := rd.GetExclusion(ctx, c.ID)
 	if err != nil {
 		return oapi.Curve{}, err
 	}

@@ -35,11 +35,11 @@ func (s *Server) CreateRunSamples(ctx context.Context, req oapi.CreateRunSamples
 
 // GetRunResults returns every result of a run's samples.
 func (s *Server) GetRunResults(ctx context.Context, req oapi.GetRunResultsRequestObject) (oapi.GetRunResultsResponseObject, error) {
-	results, err := s.lab.RunResults(ctx, req.ID.String())
+	results, rd, err := byID(ctx, s, func(rd *lab.Service) ([]lab.Result, error) { return rd.RunResults(ctx, req.ID.String()) })
 	if err != nil {
 		return nil, err
 	}
-	if out, ok, err := s.runResultsAs(ctx, req.ID.String(), results); ok {
+	if out, ok, err := s.runResultsAs(ctx, rd, req.ID.String(), results); ok {
 		return out, err
 	}
 	return oapi.GetRunResults200JSONResponse(oapi.RunResults{RunID: req.ID, Results: resultsOut(results), Cautions: calib.Cautions()}), nil
@@ -47,7 +47,7 @@ func (s *Server) GetRunResults(ctx context.Context, req oapi.GetRunResultsReques
 
 // GetSampleResults returns every result for a LIMS sample id.
 func (s *Server) GetSampleResults(ctx context.Context, req oapi.GetSampleResultsRequestObject) (oapi.GetSampleResultsResponseObject, error) {
-	results, err := s.lab.SampleResults(ctx, req.SampleID)
+	results, _, err := byID(ctx, s, func(rd *lab.Service) ([]lab.Result, error) { return rd.SampleResults(ctx, req.SampleID) })
 	if err != nil {
 		var se *lab.Error
 		if errors.As(err, &se) && se.Kind == lab.KindNotFound {
@@ -74,7 +74,7 @@ func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEvents
 	if req.Params.Limit != nil {
 		limit = *req.Params.Limit
 	}
-	page, err := s.lab.ResultFeed(ctx, deref(req.Params.Cursor), limit)
+	page, err := s.reading(ctx).ResultFeed(ctx, deref(req.Params.Cursor), limit)
 	if err != nil {
 		return nil, err
 	}

@@ -183,7 +183,7 @@ func runInput(body *oapi.RunRequest) lab.RunInput {
 
 // GetRun returns a run as stored.
 func (s *Server) GetRun(ctx context.Context, req oapi.GetRunRequestObject) (oapi.GetRunResponseObject, error) {
-	r, err := s.lab.GetRun(ctx, req.ID.String())
+	r, _, err := byID(ctx, s, func(rd *lab.Service) (*lab.Run, error) { return rd.GetRun(ctx, req.ID.String()) })
 	if err != nil {
 		return nil, err
 	}

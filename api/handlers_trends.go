@@ -31,7 +31,7 @@ func trendQueryOf(instrument, analyte string, param *oapi.TrendParameter, from, 
 // GetTrend returns the drift of one parameter of one instrument and analyte.
 func (s *Server) GetTrend(ctx context.Context, req oapi.GetTrendRequestObject) (oapi.GetTrendResponseObject, error) {
 	p := req.Params
-	t, err := s.lab.Trend(ctx, trendQueryOf(p.Instrument, p.Analyte, p.Parameter, p.From, p.To, p.Baseline))
+	t, err := s.reading(ctx).Trend(ctx, trendQueryOf(p.Instrument, p.Analyte, p.Parameter, p.From, p.To, p.Baseline))
 	if err != nil {
 		return nil, err
 	}
@@ -105,7 +105,7 @@ func trendChart(t *lab.Trend) ([]byte, error) {
 // GetTrendPlotSVG draws the trend's control chart.
 func (s *Server) GetTrendPlotSVG(ctx context.Context, req oapi.GetTrendPlotSVGRequestObject) (oapi.GetTrendPlotSVGResponseObject, error) {
 	p := req.Params
-	t, err := s.lab.Trend(ctx, trendQueryOf(p.Instrument, p.Analyte, p.Parameter, p.From, p.To, p.Baseline))
+	t, err := s.reading(ctx).Trend(ctx, trendQueryOf(p.Instrument, p.Analyte, p.Parameter, p.From, p.To, p.Baseline))
 	if err != nil {
 		return nil, err
 	}

@@ -58,16 +58,38 @@ type readsKey struct{}
 // client's last write position, if it sent one.
 type readsFrom struct{ afterLSN string }
 
-// reads returns the handle a lag-tolerant read uses: a read replica within
-// the lag bound that has replayed the client's last write, or the primary.
-// Outside a GET or HEAD (or with no replicas) it is the primary. Handlers
-// call it for reads that may be served a few seconds stale.
-func (s *Server) reads(ctx context.Context) lab.Reader {
+// reading returns the service a lag-tolerant read uses: its stored reads
+// come from a read replica within the lag bound that has replayed the
+// client's last write (Curvekeeper-Write-LSN, or the QA pages' cookie), or
+// from the primary. Outside a GET or HEAD (or with no replicas) it is the
+// primary's service itself. Handlers call it for the reads that may be
+// served up to the lag bound stale (README, "Scaling out"); writes, token,
+// session and signature checks use s.lab.
+func (s *Server) reading(ctx context.Context) *lab.Service {
 	r, ok := ctx.Value(readsKey{}).(readsFrom)
 	if !ok {
 		return s.lab
 	}
-	return s.topo.ReadsFor(r.afterLSN)
+	rd := s.topo.ReadsFor(r.afterLSN)
+	if rd == s.lab.Reader { // kept on the primary
+		return s.lab
+	}
+	return s.lab.ReadingFrom(rd)
+}
+
+// byID runs a read of one record by its id on reading(ctx) and, when that
+// is a replica that does not know the id (KindNotFound), once more on the
+// primary: the id may come from a write the replica has not replayed yet
+// (another client's, or one whose LSN the client did not send back). It
+// returns the service that answered, for the reads that follow.
+func byID[T any](ctx context.Context, s *Server, read func(*lab.Service) (T, error)) (T, *lab.Service, error) {
+	rd := s.reading(ctx)
+	v, err := read(rd)
+	if rd != s.lab && lab.KindOf(err) == lab.KindNotFound {
+		rd = s.lab
+		v, err = read(rd)
+	}
+	return v, rd, err
 }
 
 // replicationMiddleware refuses writes while the database is a standby
@@ -116,9 +138,13 @@ func (s *Server) refuseWrite(c echo.Context) error {
 }
 
 // markWrite runs just before a write's response header goes out: on
-// success it adds the primary's WAL position, which covers the write.
+// success (2xx, or a QA form's 303 to the page that shows its result) it
+// adds the primary's WAL position, which covers the write, as the header
+// and as the cookie. The browser sends the cookie with the GET the 303
+// leads to, so that page reads from a replica that has replayed the write,
+// or from the primary.
 func (s *Server) markWrite(c echo.Context) {
-	if st := c.Response().Status; st < 200 || st > 299 {
+	if st := c.Response().Status; (st < 200 || st > 299) && st != http.StatusSeeOther {
 		return
 	}
 	ctx, cancel := context.WithTimeout(context.WithoutCancel(c.Request().Context()), time.Second)

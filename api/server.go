@@ -112,7 +112,7 @@ func New(cfg Config, svc *lab.Service, log *slog.Logger) (*Server, error) {
 	s.metrics.registry.MustRegister(newReplicationCollector(s.topo))
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
 	s.registerDecodedRoutes(e)
-	s.ui = qaui.New(qaui.Deps{Lab: svc, Log: log, Curve: s.freshCurve, Reviewed: s.curves.drop,
+	s.ui = qaui.New(qaui.Deps{Lab: svc, Log: log, Reading: s.reading, Curve: s.freshCurve, Audit: s.curveAudit, Reviewed: s.curves.drop,
 		Plot:       func(ctx context.Context, id string) ([]byte, error) { return s.plot(ctx, id, curveplot.FormatSVG) },
 		TrendChart: trendChart, RequestID: requestID, Status: StatusOf,
 		WithPrincipal: func(ctx context.Context, p lab.Principal) context.Context {

@@ -351,7 +351,6 @@ type PeopleStore interface {
 	// every type on recordID.
 	ListSignatures(ctx context.Context, recordType, recordID string) ([]Signature, error)
 	WithdrawSignature(ctx context.Context, id string, by *Person, reason, actor string) (*Signature, error)
-	SearchAudit(ctx context.Context, f AuditFilter) ([]AuditEvent, error)
 }
 
 // AuditFilter selects audit rows by person (login) and by record (type and

@@ -236,7 +236,8 @@ func (c *CurveSummary) ParamValue(p string) (float64, bool) {
 type TrendSubject struct {
 	Instrument string
 	Analyte    string
-	Curves     int
+	Curves     int  // how many, up to MaxTrendPoints
+	More       bool // more than Curves (and than one trend reads)
 	Last       time.Time
 }
 

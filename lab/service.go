@@ -26,6 +26,8 @@ type Reader interface {
 	CurveStatus(ctx context.Context, id string) (string, error)
 	ListCurves(ctx context.Context, f CurveFilter) (*CurvePage, error)
 	ListAudit(ctx context.Context, curveID string) ([]AuditEvent, error)
+	// SearchAudit returns audit rows by person and record, newest first.
+	SearchAudit(ctx context.Context, f AuditFilter) ([]AuditEvent, error)
 	GetMethod(ctx context.Context, name string) (*Method, error)
 	GetMethodRevision(ctx context.Context, name string, rev int) (*Method, error)
 	ListMethods(ctx context.Context) ([]Method, error)
@@ -101,6 +103,16 @@ func NewService(st Store, opts ...Option) *Service {
 		o(s)
 	}
 	return s
+}
+
+// ReadingFrom returns the same rules with their stored reads (Reader, and
+// the Service's reads built on it: Trend, SearchAudit) taken from r, a read
+// replica for reads that tolerate its lag (Topology.ReadsFor). Writes,
+// token and session checks, people and signatures stay on s's store.
+func (s *Service) ReadingFrom(r Reader) *Service {
+	c := *s
+	c.Reader = r
+	return &c
 }
 
 // Topology returns the database's replication, for the api.

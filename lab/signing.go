@@ -115,5 +115,5 @@ func (s *Service) SearchAudit(ctx context.Context, f AuditFilter) ([]AuditEvent,
 	if f.Limit <= 0 || f.Limit > MaxAuditLimit {
 		f.Limit = MaxAuditLimit
 	}
-	return s.people.SearchAudit(ctx, f)
+	return s.Reader.SearchAudit(ctx, f)
 }

@@ -66,7 +66,8 @@ type PlanCase struct {
 	Args []any
 }
 
-// HotStatements are the reads of every ingest and prediction request.
+// HotStatements are the reads of every ingest and prediction request, and
+// of a client following the change feed.
 func HotStatements() []PlanCase {
 	hash := make([]byte, 32)
 	curve := "0190a1b2-c3d4-7e5f-8a9b-0c1d2e3f4a5b"
@@ -77,5 +78,11 @@ func HotStatements() []PlanCase {
 		{"idempotency key", sqlSelectKey, []any{curve, "key-1"}},
 		{"latest method revision", sqlSelectLatestMethod, []any{"nitrate-ic"}},
 		{"recent approved slopes", sqlRecentApprovedSlopes, []any{"ic-1", "nitrate", time.Now(), 20}},
+		{"a change feed page", sqlResultFeed(lab.DefaultFeedLimit + 1), []any{int64(41)}},
 	}
+}
+
+// TrendSubjectsUpTo is TrendSubjects counting each pair's curves up to max.
+func TrendSubjectsUpTo(ctx context.Context, db *DB, max int) ([]lab.TrendSubject, error) {
+	return db.trendSubjects(ctx, max)
 }

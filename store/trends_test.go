@@ -7,6 +7,7 @@ import (
 	"time"
 
 	"curvekeeper/lab"
+	"curvekeeper/store"
 )
 
 func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
@@ -109,4 +110,61 @@ func TestTrendSeriesAndApprovedSlopes(t *testing.T) {
 		_, err = db.ReadForRun(ctx, lab.RunReadsQuery{Method: m.Name, Instrument: "ic-02", Before: before, Limit: 0})
 		wantKind(t, err, lab.KindInvalid)
 	})
+}
+
+// TestTrendSubjects compares the index-skipping list of instruments and
+// analytes with the plain GROUP BY over every curve it replaced, on runs of
+// two instruments, and checks the count's cap.
+func TestTrendSubjects(t *testing.T) {
+	ctx := context.Background()
+	db := newDB(t)
+	m := mustMethod(t, db, "nitrate-ic")
+	for i := range 7 {
+		in, curves := runInput(m, baseTime.Add(time.Duration(i)*24*time.Hour))
+		if i%3 == 0 { // another instrument, the same analytes
+			in.Instrument = "ic-01"
+			in.RequestHash = hashOf("ic-01|" + in.AcquiredAt.String())
+		}
+		if _, err := db.CreateRun(ctx, in, curves); err != nil {
+			t.Fatal(err)
+		}
+	}
+	rows, err := db.Pool.Query(ctx, `SELECT instrument, analyte, count(*)::int, max(acquired_at) FROM curves
+GROUP BY instrument, analyte ORDER BY instrument, analyte`)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var want []lab.TrendSubject
+	for rows.Next() {
+		var s lab.TrendSubject
+		if err := rows.Scan(&s.Instrument, &s.Analyte, &s.Curves, &s.Last); err != nil {
+			t.Fatal(err)
+		}
+		want = append(want, s)
+	}
+	if err := rows.Err(); err != nil {
+		t.Fatal(err)
+	}
+	got, err := db.TrendSubjects(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(want) != 4 || len(got) != len(want) {
+		t.Fatalf("TrendSubjects = %+v, GROUP BY = %+v; want the same 4 pairs", got, want)
+	}
+	for i := range want {
+		if got[i].Instrument != want[i].Instrument || got[i].Analyte != want[i].Analyte || got[i].Curves != want[i].Curves ||
+			!got[i].Last.Equal(want[i].Last) || got[i].More {
+			t.Errorf("pair %d: %+v, GROUP BY says %+v", i, got[i], want[i])
+		}
+	}
+	capped, err := store.TrendSubjectsUpTo(ctx, db, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i, s := range capped {
+		if wantMore := want[i].Curves > 2; s.More != wantMore || s.Curves != min(want[i].Curves, 2) || !s.Last.Equal(want[i].Last) {
+			t.Errorf("capped at 2, pair %d: %+v, want %d curves (more %v), last %v", i, s, min(want[i].Curves, 2), wantMore, want[i].Last)
+		}
+	}
 }

@@ -68,7 +68,8 @@ type comparisonRow struct {
 func (s *Pages) contextOf(ctx context.Context, cv *lab.Curve) (*curveContext, error) {
 	r := cv.Report
 	out := &curveContext{Candidates: r.WeightCandidates}
-	if run, err := s.Lab.GetRun(ctx, cv.RunID); err == nil {
+	rd := s.Reading(ctx) // lag-tolerant reads, as the curve's own
+	if run, err := rd.GetRun(ctx, cv.RunID); err == nil {
 		out.Operator = run.Operator
 	} else if lab.KindOf(err) != lab.KindNotFound {
 		return nil, err
@@ -89,7 +90,7 @@ func (s *Pages) contextOf(ctx context.Context, cv *lab.Curve) (*curveContext, er
 		}
 	}
 
-	results, err := s.Lab.RunResults(ctx, cv.RunID)
+	results, err := rd.RunResults(ctx, cv.RunID)
 	if err != nil && lab.KindOf(err) != lab.KindNotFound {
 		return nil, err
 	}
@@ -98,17 +99,17 @@ func (s *Pages) contextOf(ctx context.Context, cv *lab.Curve) (*curveContext, er
 			out.Samples = append(out.Samples, res)
 		}
 	}
-	if out.Checks, err = s.Lab.ListVerifications(ctx, cv.ID); err != nil && lab.KindOf(err) != lab.KindNotFound {
+	if out.Checks, err = rd.ListVerifications(ctx, cv.ID); err != nil && lab.KindOf(err) != lab.KindNotFound {
 		return nil, err
 	}
 	if cv.RevisionOf != "" {
-		if out.Exclusion, err = s.Lab.GetExclusion(ctx, cv.ID); err != nil && lab.KindOf(err) != lab.KindNotFound {
+		if out.Exclusion, err = rd.GetExclusion(ctx, cv.ID); err != nil && lab.KindOf(err) != lab.KindNotFound {
 			return nil, err
 		}
 	}
 	// The curves of the same instrument and analyte up to this one's time,
 	// newest first: its revision, if any, and the previous curve.
-	page, err := s.Lab.ListCurves(ctx, lab.CurveFilter{Instrument: cv.Instrument, Analyte: cv.Analyte,
+	page, err := rd.ListCurves(ctx, lab.CurveFilter{Instrument: cv.Instrument, Analyte: cv.Analyte,
 		To: cv.AcquiredAt.Add(time.Microsecond), Limit: 50})
 	if err != nil {
 		return nil, err

@@ -219,7 +219,7 @@ func (s *Pages) uiCurveList(c echo.Context) error {
 	}
 	status := http.StatusOK
 	if v.Problem == "" {
-		page, err := s.Lab.ListCurves(c.Request().Context(), f)
+		page, err := s.Reading(c.Request().Context()).ListCurves(c.Request().Context(), f)
 		switch {
 		case lab.KindOf(err) == lab.KindInvalid:
 			var se *lab.Error
@@ -336,7 +336,7 @@ func (s *Pages) curveView(c echo.Context, id string) (*curveView, error) {
 	tq := url.Values{"instrument": {cv.Instrument}, "analyte": {cv.Analyte}, "parameter": {lab.ParamSlope}}
 	v.TrendLink = template.URL("/ui/trends?" + tq.Encode())
 	if sessionOf(c).CanReview() {
-		events, err := s.Lab.ListAudit(ctx, id)
+		events, err := s.Audit(ctx, id)
 		if err != nil {
 			return nil, err
 		}
@@ -480,7 +480,8 @@ func (s *Pages) uiTrendPage(c echo.Context) error {
 	ctx := c.Request().Context()
 	tq, keep, problem := trendQueryFrom(c.QueryParams())
 	v := trendView{Query: keep, Params: lab.TrendParameters, Problem: problem}
-	subjects, err := s.Lab.TrendSubjects(ctx)
+	rd := s.Reading(ctx)
+	subjects, err := rd.TrendSubjects(ctx)
 	if err != nil {
 		return s.Fail(c, err)
 	}
@@ -489,7 +490,7 @@ func (s *Pages) uiTrendPage(c echo.Context) error {
 	if problem != "" {
 		status = http.StatusBadRequest
 	} else if tq.Instrument != "" && tq.Analyte != "" {
-		t, err := s.Lab.Trend(ctx, tq)
+		t, err := rd.Trend(ctx, tq)
 		if err != nil {
 			return s.Fail(c, err)
 		}
@@ -518,7 +519,7 @@ func (s *Pages) uiTrendPlot(c echo.Context) error {
 	if problem != "" || tq.Instrument == "" || tq.Analyte == "" {
 		return s.Error(c, http.StatusBadRequest, "Name an instrument and an analyte. "+problem)
 	}
-	t, err := s.Lab.Trend(c.Request().Context(), tq)
+	t, err := s.Reading(c.Request().Context()).Trend(c.Request().Context(), tq)
 	if err != nil {
 		return s.Fail(c, err)
 	}

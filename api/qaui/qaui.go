@@ -22,8 +22,15 @@ import (
 type Deps struct {
 	Lab *lab.Service
 	Log *slog.Logger
-	// Curve returns curve id with its current review status.
+	// Reading returns the service whose reads tolerate a read replica's
+	// lag (the api's reading): the curve list and the trends read from it.
+	// Sessions, reviews and signatures use Lab.
+	Reading func(ctx context.Context) *lab.Service
+	// Curve returns curve id with its current review status (in a GET,
+	// as a read replica has it).
 	Curve func(ctx context.Context, id string) (*lab.Curve, error)
+	// Audit returns curve id's audit trail (in a GET, from a read replica).
+	Audit func(ctx context.Context, id string) ([]lab.AuditEvent, error)
 	// Reviewed says that curve id was reviewed (its cached copy is stale).
 	Reviewed func(id string)
 	// Plot draws curve id as SVG.

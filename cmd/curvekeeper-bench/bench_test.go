@@ -203,3 +203,48 @@ func TestSameRowsBaselineWritesTheRecord(t *testing.T) {
 		t.Errorf("stored report differs from the engine's fit of the run (%d vs %d bytes)", len(stored), len(want))
 	}
 }
+
+// TestBulkLoadHistoryIsReadable: the growth scenario's loader writes runs
+// whose readings, curves, results and feed events the store reads back, and
+// leaves the identity columns' numbering past the loaded rows, so the
+// service's own writes that follow do not collide with them.
+func TestBulkLoadHistoryIsReadable(t *testing.T) {
+	url, db := benchDB(t)
+	ctx := context.Background()
+	const runs = 2 * growthInstruments
+	if err := bulkLoadHistory(ctx, url, runs); err != nil {
+		t.Fatal(err)
+	}
+	var readings int
+	if err := db.Pool.QueryRow(ctx, `SELECT count(*) FROM readings`).Scan(&readings); err != nil {
+		t.Fatal(err)
+	}
+	if readings != 16*runs {
+		t.Errorf("readings = %d, want %d", readings, 16*runs)
+	}
+	feed, err := db.ResultFeed(ctx, "", 1000)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(feed.Events) != runs || feed.More {
+		t.Fatalf("feed has %d events (more %v), want %d", len(feed.Events), feed.More, runs)
+	}
+	res, err := db.SampleResults(ctx, "GROW-3")
+	if err != nil || len(res) != 1 || res[0].RunID != feed.Events[3].RunID {
+		t.Errorf("results of GROW-3 = %+v, %v; want the fourth run's one result", res, err)
+	}
+	curves, _, err := db.TrendSeries(ctx, lab.TrendFilter{Instrument: "bench-photometer-0", Analyte: benchAnalyte,
+		From: growthEnd.Add(-growthWindow), To: growthEnd.Add(time.Second)})
+	if err != nil || len(curves) != 2 || curves[0].Status != lab.StatusApproved {
+		t.Errorf("trend of bench-photometer-0 = %d curves, %v; want its 2 approved curves", len(curves), err)
+	}
+	for _, tc := range [][2]string{{"run_samples", "id"}, {"sample_results", "id"}, {"result_events", "seq"}} {
+		var next, maxID int64
+		if err := db.Pool.QueryRow(ctx, `SELECT nextval(pg_get_serial_sequence('`+tc[0]+`', '`+tc[1]+`')), (SELECT max(`+tc[1]+`) FROM `+tc[0]+`)`).Scan(&next, &maxID); err != nil {
+			t.Fatal(err)
+		}
+		if next != maxID+1 {
+			t.Errorf("%s: the next %s is %d, want %d", tc[0], tc[1], next, maxID+1)
+		}
+	}
+}

@@ -11,7 +11,11 @@ import (
 )
 
 // scenarioNames are every scenario, in the order they run.
-var scenarioNames = []string{"startup", "ingest", "predict", "history", "fit", "fit_4pl"}
+var scenarioNames = []string{"startup", "ingest", "predict", "history", "fit", "fit_4pl", "growth"}
+
+// defaultScenarios run unless -scenarios says otherwise: every one but
+// growth, whose load of millions of readings takes minutes on its own.
+var defaultScenarios = scenarioNames[:len(scenarioNames)-1]
 
 // config is every setting of one harness run, parsed once from flags.
 type config struct {
@@ -32,6 +36,8 @@ type config struct {
 	HistorySamples int // requests per page measured
 	StartupRepeats int
 	FitLoops       int
+	GrowthReadings int // readings in the large database of the growth scenario
+	GrowthRequests int // requests per operation and side
 }
 
 func parseConfig(args []string, getenv func(string) string, stderr io.Writer) (config, error) {
@@ -40,7 +46,8 @@ func parseConfig(args []string, getenv func(string) string, stderr io.Writer) (c
 	fs.SetOutput(stderr)
 	fs.BoolVar(&cfg.Quick, "quick", false, "a smaller run, at most 60 s")
 	fs.StringVar(&cfg.DatabaseURL, "database-url", getenv("DATABASE_URL"), "PostgreSQL server to make a fresh database on; empty starts a private cluster (DATABASE_URL)")
-	only := fs.String("scenarios", strings.Join(scenarioNames, ","), "comma-separated scenarios to run")
+	only := fs.String("scenarios", strings.Join(defaultScenarios, ","), "comma-separated scenarios to run (of "+strings.Join(scenarioNames, ",")+")")
+	growth := fs.Int("growth-readings", 0, "readings in the growth scenario's large database (0: 10,000,000, or 200,000 with -quick)")
 	fs.StringVar(&cfg.ProfileDir, "profile-dir", "", "write CPU profiles of the service under load to this folder (enables its pprof listener)")
 	if err := fs.Parse(args); err != nil {
 		return cfg, err
@@ -59,6 +66,17 @@ func parseConfig(args []string, getenv func(string) string, stderr io.Writer) (c
 		return cfg, errors.New("no scenario selected")
 	}
 	cfg.setSizes()
+	if *growth < 0 {
+		return cfg, errors.New("-growth-readings must not be negative")
+	}
+	if *growth > 0 {
+		cfg.GrowthReadings = *growth
+	}
+	if cfg.has("growth") {
+		// The load takes about 1 minute per million readings on a busy
+		// 2-core machine; allow three.
+		cfg.Budget += time.Duration(cfg.GrowthReadings/1000) * 180 * time.Millisecond
+	}
 	return cfg, nil
 }
 
@@ -75,6 +93,7 @@ func (c *config) setSizes() {
 		c.IngestMax, c.PredictMax = 400, 20000
 		c.HistoryCurves, c.HistoryPair, c.HistoryPage, c.HistorySamples = 12_000, 10_500, 200, 200
 		c.StartupRepeats, c.FitLoops = 1, 500
+		c.GrowthReadings, c.GrowthRequests = 200_000, 300
 		return
 	}
 	c.Budget = 5 * time.Minute
@@ -82,6 +101,7 @@ func (c *config) setSizes() {
 	c.IngestMax, c.PredictMax = 5000, 200000
 	c.HistoryCurves, c.HistoryPair, c.HistoryPage, c.HistorySamples = 1_000_000, 100_000, 1000, 1500
 	c.StartupRepeats, c.FitLoops = 3, 3000
+	c.GrowthReadings, c.GrowthRequests = 10_000_000, 1500
 }
 
 func (c config) has(s string) bool { return slices.Contains(c.Scenarios, s) }

@@ -60,6 +60,15 @@ func runRequest(i int) runReq {
 	return r
 }
 
+// benchInstruments are the instruments runRequest posts for.
+func benchInstruments() []string {
+	out := make([]string, 8)
+	for i := range out {
+		out[i] = "bench-photometer-" + strconv.Itoa(i)
+	}
+	return out
+}
+
 // ingest compares POST /v1/runs with 16 clients against 16 goroutines of a
 // pgxpool inserting the same run and readings into tables of the same shape,
 // one transaction each.

@@ -5,6 +5,7 @@
 //
 //	go run ./cmd/curvekeeper-bench          # the full run, at most 5 minutes
 //	go run ./cmd/curvekeeper-bench -quick   # a smaller run, at most 60 seconds
+//	go run ./cmd/curvekeeper-bench -scenarios growth [-growth-readings N]   # 10 million readings against a small database
 //
 // It builds cmd/curvekeeper, starts it as a subprocess against a fresh
 // database (a private PostgreSQL cluster in a temporary folder, or a new

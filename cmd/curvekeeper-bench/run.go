@@ -96,10 +96,12 @@ func (h *harness) run(ctx context.Context) error {
 		}
 	}
 	needService := h.cfg.has("ingest") || h.cfg.has("predict") || h.cfg.has("history")
-	if needService {
+	if needService || h.cfg.has("growth") {
 		if err := h.openDatabase(ctx); err != nil {
 			return err
 		}
+	}
+	if needService {
 		if err := h.startService(ctx); err != nil {
 			return err
 		}
@@ -107,7 +109,7 @@ func (h *harness) run(ctx context.Context) error {
 	steps := []struct {
 		name string
 		fn   func(context.Context) error
-	}{{"ingest", h.ingest}, {"predict", h.predict}, {"history", h.history}, {"fit", h.fit}, {"fit_4pl", h.fit4PL}}
+	}{{"ingest", h.ingest}, {"predict", h.predict}, {"history", h.history}, {"fit", h.fit}, {"fit_4pl", h.fit4PL}, {"growth", h.growth}}
 	for _, s := range steps {
 		if !h.cfg.has(s.name) {
 			continue
@@ -160,7 +162,33 @@ func (h *harness) openDatabase(ctx context.Context) error {
 // startService starts the service against the fresh database with a
 // bootstrap admin token, then defines the bench method and tokens.
 func (h *harness) startService(ctx context.Context) error {
-	h.admin = "ck_bench_" + randomHex(16)
+	in, err := h.startInstance(ctx, h.dbURL, "service.log")
+	if in != nil {
+		h.svc = in.svc
+	}
+	if err != nil {
+		return err
+	}
+	h.admin, h.instrument, h.lims, h.curveID = in.admin, in.instrument, in.lims, in.curveID
+	return nil
+}
+
+// instance is one service process on its database, with the bench method,
+// its tokens and one fitted curve.
+type instance struct {
+	svc        *proc
+	admin      string // bootstrap admin secret
+	instrument string // runs:write token
+	lims       string // results:read token
+	curveID    string // a fitted curve to predict against
+}
+
+// startInstance starts the service on dbURL (logging to logName in the
+// temporary folder) with a bootstrap admin token, then defines the bench
+// method and tokens and posts one run. When svc is set the caller stops it,
+// also on error.
+func (h *harness) startInstance(ctx context.Context, dbURL, logName string) (*instance, error) {
+	in := &instance{admin: "ck_bench_" + randomHex(16)}
 	// Each load runs on one token far above the default per-token rate
 	// limit (50/s). A limit no load reaches keeps the limiter's own cost in
 	// the measurement without throttling it.
@@ -170,31 +198,35 @@ func (h *harness) startService(ctx context.Context) error {
 		args = append(args, "--pprof-listen", "127.0.0.1:0")
 		pprofPrefix = pprofLinePrefix
 	}
-	env := []string{"DATABASE_URL=" + h.dbURL, "CURVEKEEPER_BOOTSTRAP_TOKEN=" + h.admin}
-	h.progress("starting the service")
-	svc, err := startProc(ctx, h.bin, args, env, filepath.Join(h.tmp, "service.log"), serviceLinePrefix, pprofPrefix)
+	env := []string{"DATABASE_URL=" + dbURL, "CURVEKEEPER_BOOTSTRAP_TOKEN=" + in.admin}
+	h.progress("starting the service (%s)", logName)
+	svc, err := startProc(ctx, h.bin, args, env, filepath.Join(h.tmp, logName), serviceLinePrefix, pprofPrefix)
 	if err != nil {
-		return err
+		return nil, err
 	}
-	h.svc = svc
+	in.svc = svc
 	if err := waitReady(ctx, svc.base+"/readyz", 30*time.Second); err != nil {
-		return err
+		return in, err
 	}
 	cl := newClient(2)
 	method := map[string]any{"name": benchMethod, "model": "linear", "weighting": "1/x^2",
 		"analytes": []map[string]string{{"name": benchAnalyte, "unit": "mg/L"}}}
-	if _, err := post(ctx, cl, svc.base+"/v1/methods", h.admin, method, http.StatusCreated, nil); err != nil {
-		return err
+	if _, err := post(ctx, cl, svc.base+"/v1/methods", in.admin, method, http.StatusCreated, nil); err != nil {
+		return in, err
 	}
 	for _, t := range []struct {
 		name, scope string
 		into        *string
-	}{{"bench-instrument", "runs:write", &h.instrument}, {"bench-lims", "results:read", &h.lims}} {
+	}{{"bench-instrument", "runs:write", &in.instrument}, {"bench-lims", "results:read", &in.lims}} {
 		var out struct {
 			Token string `json:"token"`
 		}
-		if _, err := post(ctx, cl, svc.base+"/v1/tokens", h.admin, map[string]any{"name": t.name, "scopes": []string{t.scope}}, http.StatusCreated, &out); err != nil {
-			return err
+		body := map[string]any{"name": t.name, "scopes": []string{t.scope}}
+		if t.scope == "runs:write" { // bound to the instruments runRequest posts for
+			body["instruments"] = benchInstruments()
+		}
+		if _, err := post(ctx, cl, svc.base+"/v1/tokens", in.admin, body, http.StatusCreated, &out); err != nil {
+			return in, err
 		}
 		*t.into = out.Token
 	}
@@ -203,14 +235,14 @@ func (h *harness) startService(ctx context.Context) error {
 			ID string `json:"id"`
 		} `json:"curves"`
 	}
-	if _, err := post(ctx, cl, svc.base+"/v1/runs", h.instrument, runRequest(-1), http.StatusCreated, &created); err != nil {
-		return err
+	if _, err := post(ctx, cl, svc.base+"/v1/runs", in.instrument, runRequest(-1), http.StatusCreated, &created); err != nil {
+		return in, err
 	}
 	if len(created.Curves) != 1 {
-		return fmt.Errorf("the set-up run made %d curves, want 1", len(created.Curves))
+		return in, fmt.Errorf("the set-up run made %d curves, want 1", len(created.Curves))
 	}
-	h.curveID = created.Curves[0].ID
-	return nil
+	in.curveID = created.Curves[0].ID
+	return in, nil
 }
 
 // post sends v as JSON and decodes the answer into out (when not nil).

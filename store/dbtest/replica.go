@@ -11,6 +11,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/jackc/pgx/v5"
 	"github.com/jackc/pgx/v5/pgconn"
 
 	"curvekeeper/store/localpg"
@@ -205,4 +206,49 @@ func databaseOf(t testing.TB, connString string) string {
 		t.Fatalf("dbtest: parse database url: %v", err)
 	}
 	return cfg.Database
+}
+
+// StandbyCommits returns pg_stat_database.xact_commit of the test's
+// database on the standby: the transactions the standby itself has counted
+// there. A backend reports its counts when it exits, so the caller first
+// closes its connections to that database (pgxpool's Reset or Close);
+// StandbyCommits waits until no backend is left on it and the last one has
+// had time to report, then reads the count from a session on another
+// database, which adds nothing to it.
+func (p *Pair) StandbyCommits(t testing.TB) int64 {
+	t.Helper()
+	ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
+	defer cancel()
+	cfg, err := pgx.ParseConfig(p.StandbyURL)
+	if err != nil {
+		t.Fatal(err)
+	}
+	name := cfg.Database
+	cfg.Database = "postgres"
+	conn, err := pgx.ConnectConfig(ctx, cfg)
+	if err != nil {
+		t.Fatalf("dbtest: connect to the standby: %v", err)
+	}
+	defer conn.Close(ctx)
+	for {
+		var n int
+		if err := conn.QueryRow(ctx, `SELECT count(*) FROM pg_stat_activity WHERE datname = $1`, name).Scan(&n); err != nil {
+			t.Fatalf("dbtest: standby backends: %v", err)
+		}
+		if n == 0 {
+			break
+		}
+		select {
+		case <-ctx.Done():
+			t.Fatalf("dbtest: %d backends still on the standby's %s", n, name)
+		case <-time.After(50 * time.Millisecond):
+		}
+	}
+	// A backend leaves pg_stat_activity just before it reports its counts.
+	time.Sleep(300 * time.Millisecond)
+	var commits int64
+	if err := conn.QueryRow(ctx, `SELECT coalesce((SELECT xact_commit FROM pg_stat_database WHERE datname = $1), 0)`, name).Scan(&commits); err != nil {
+		t.Fatalf("dbtest: standby xact_commit: %v", err)
+	}
+	return commits
 }
