@@ -2,6 +2,7 @@ package oapi
 
 import (
 	"encoding/json"
+	"errors"
 	"testing"
 	"time"
 )
@@ -42,5 +43,29 @@ func TestTimestampFixedPrecision(t *testing.T) {
 	}
 	if _, err := json.Marshal(NewTimestamp(time.Date(10000, 1, 1, 0, 0, 0, 0, time.UTC))); err == nil {
 		t.Error("year 10000 written; RFC 3339 has four-digit years")
+	}
+}
+
+// TestParseTimestamp: RFC 3339 section 5.6 lets T and Z be lower case; a
+// leap second is a LeapSecondError; what time's strict reader refuses stays
+// refused.
+func TestParseTimestamp(t *testing.T) {
+	want := time.Date(2026, 3, 2, 8, 0, 0, 0, time.UTC)
+	for _, s := range []string{"2026-03-02T08:00:00Z", "2026-03-02t08:00:00z", "2026-03-02t09:00:00+01:00", "2026-03-02T08:00:00.000z"} {
+		got, err := ParseTimestamp(s)
+		if err != nil || !got.Equal(want) {
+			t.Errorf("ParseTimestamp(%q) = %v, %v; want %v", s, got, err, want)
+		}
+	}
+	for _, s := range []string{"2016-12-31T23:59:60Z", "2016-12-31t23:59:60.5+00:00"} {
+		var leap *LeapSecondError
+		if _, err := ParseTimestamp(s); !errors.As(err, &leap) {
+			t.Errorf("ParseTimestamp(%q): %v, want a LeapSecondError", s, err)
+		}
+	}
+	for _, s := range []string{"2026-03-02 08:00:00Z", "2026-02-30T08:00:00Z", "2026-03-02T08:00:00+24:00", "2026-03-02T08:00:00,5Z", "2026-03-02T08:00:00", "2026-03-02x08:00:00Z"} {
+		if _, err := ParseTimestamp(s); err == nil {
+			t.Errorf("ParseTimestamp(%q) accepted", s)
+		}
 	}
 }
