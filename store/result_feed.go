@@ -119,7 +119,7 @@ func (db *DB) ResultFeed(ctx context.Context, since string, limit int) (*lab.Fee
 	case limit < 0 || limit > lab.MaxFeedLimit:
 		return nil, lab.ParamError(lab.KindInvalid, lab.InQuery, "limit", "limit must be between 1 and %d", lab.MaxFeedLimit)
 	}
-	rows, err := db.Pool.Query(ctx, `
+	rows, err := db.q(ctx).Query(ctx, `
 SELECT e.seq, e.at, e.kind, e.cause, e.release_state, coalesce(e.previous_state, ''), e.reason,
        r.id, r.sample_id, r.run_id, r.curve_id, r.analyte, r.unit, r.concentration
 FROM result_events e JOIN sample_results r ON r.id = e.result_id

@@ -57,7 +57,7 @@ func (db *DB) CreateSession(ctx context.Context, tokenSecret string, ttl time.Du
 // or expired session, or one whose token was revoked, is KindNotFound.
 func (db *DB) LookupSession(ctx context.Context, secret string) (lab.Session, error) {
 	var s lab.Session
-	err := db.Pool.QueryRow(ctx, `
+	err := db.q(ctx).QueryRow(ctx, `
 SELECT t.id, t.name, t.scopes, t.owner, s.expires_at
 FROM ui_sessions s JOIN tokens t ON t.id = s.token_id
 WHERE s.id_hash = $1 AND s.expires_at > now() AND t.revoked_at IS NULL

@@ -31,7 +31,7 @@ func (db *DB) TrendSeries(ctx context.Context, f lab.TrendFilter) (curves []lab.
 	}
 	args = append(args, lab.MaxTrendPoints+1)
 	sql += fmt.Sprintf(` ORDER BY acquired_at, id LIMIT $%d`, len(args))
-	rows, err := db.Pool.Query(ctx, sql, args...)
+	rows, err := db.q(ctx).Query(ctx, sql, args...)
 	if err != nil {
 		return nil, false, classify("trend series", err)
 	}
@@ -62,7 +62,7 @@ func (db *DB) RecentApprovedSlopes(ctx context.Context, instrument, analyte stri
 	if limit < 1 || limit > lab.MaxTrendPoints {
 		return nil, lab.Errorf(lab.KindInvalid, "limit must be in [1, %d]", lab.MaxTrendPoints)
 	}
-	rows, err := db.Pool.Query(ctx, sqlRecentApprovedSlopes, instrument, analyte, before, limit)
+	rows, err := db.q(ctx).Query(ctx, sqlRecentApprovedSlopes, instrument, analyte, before, limit)
 	if err != nil {
 		return nil, classify("recent approved slopes", err)
 	}
@@ -78,7 +78,7 @@ func (db *DB) RecentApprovedSlopes(ctx context.Context, instrument, analyte stri
 // 500), for choosing a trend. It reads the whole history index, so it is for
 // the QA pages, not for hot paths.
 func (db *DB) TrendSubjects(ctx context.Context) ([]lab.TrendSubject, error) {
-	rows, err := db.Pool.Query(ctx, `
+	rows, err := db.q(ctx).Query(ctx, `
 SELECT instrument, analyte, count(*), max(acquired_at) FROM curves
 GROUP BY instrument, analyte ORDER BY instrument, analyte LIMIT 500`)
 	if err != nil {

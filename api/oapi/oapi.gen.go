@@ -2702,6 +2702,106 @@ type ListCurvesParams struct {
 	Cursor *PageCursor `form:"cursor,omitempty" json:"cursor,omitempty"`
 }
 
+// CreateExclusionParams defines parameters for CreateExclusion.
+type CreateExclusionParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// ReviewCurveParams defines parameters for ReviewCurve.
+type ReviewCurveParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// SignCurveParams defines parameters for SignCurve.
+type SignCurveParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// CreateVerificationParams defines parameters for CreateVerification.
+type CreateVerificationParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
 // GetCurveInForceParams defines parameters for GetCurveInForce.
 type GetCurveInForceParams struct {
 	Analyte Identifier `form:"analyte" json:"analyte"`
@@ -2710,10 +2810,60 @@ type GetCurveInForceParams struct {
 	At *Timestamp `form:"at,omitempty" json:"at,omitempty"`
 }
 
+// CreateMethodParams defines parameters for CreateMethod.
+type CreateMethodParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
 // GetMethodParams defines parameters for GetMethod.
 type GetMethodParams struct {
 	// Revision A specific revision; the latest when absent.
 	Revision *int `form:"revision,omitempty" json:"revision,omitempty"`
+}
+
+// CreatePersonParams defines parameters for CreatePerson.
+type CreatePersonParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
 }
 
 // ListResultEventsParams defines parameters for ListResultEvents.
@@ -2740,7 +2890,125 @@ type CreateRunParams struct {
 	Operator *Operator `form:"operator,omitempty" json:"operator,omitempty"`
 
 	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
-	// request safe; see the operation's description.
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// CreateRunSamplesParams defines parameters for CreateRunSamples.
+type CreateRunSamplesParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// WithdrawSignatureParams defines parameters for WithdrawSignature.
+type WithdrawSignatureParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// CreateStandardMaterialParams defines parameters for CreateStandardMaterial.
+type CreateStandardMaterialParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// CreateTokenParams defines parameters for CreateToken.
+type CreateTokenParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
 	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
 }
 
@@ -2843,7 +3111,7 @@ type ServerInterface interface {
 	GetCurveAudit(ctx echo.Context, id CurveID) error
 	// CreateExclusion Exclude standards and refit, as a new revision
 	// (POST /v1/curves/{id}/exclusions)
-	CreateExclusion(ctx echo.Context, id CurveID) error
+	CreateExclusion(ctx echo.Context, id CurveID, params CreateExclusionParams) error
 	// GetCurvePlotPNG Plot of a curve, PNG
 	// (GET /v1/curves/{id}/plot.png)
 	GetCurvePlotPNG(ctx echo.Context, id CurveID) error
@@ -2861,19 +3129,19 @@ type ServerInterface interface {
 	GetCurveRecordPDF(ctx echo.Context, id CurveID) error
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
-	ReviewCurve(ctx echo.Context, id CurveID) error
+	ReviewCurve(ctx echo.Context, id CurveID, params ReviewCurveParams) error
 	// ListCurveSignatures Signatures of a curve
 	// (GET /v1/curves/{id}/signatures)
 	ListCurveSignatures(ctx echo.Context, id CurveID) error
 	// SignCurve Sign a curve
 	// (POST /v1/curves/{id}/signatures)
-	SignCurve(ctx echo.Context, id CurveID) error
+	SignCurve(ctx echo.Context, id CurveID, params SignCurveParams) error
 	// ListVerifications Verification standards of a curve
 	// (GET /v1/curves/{id}/verifications)
 	ListVerifications(ctx echo.Context, id CurveID) error
 	// CreateVerification Record a verification standard (ICV/CCV)
 	// (POST /v1/curves/{id}/verifications)
-	CreateVerification(ctx echo.Context, id CurveID) error
+	CreateVerification(ctx echo.Context, id CurveID, params CreateVerificationParams) error
 	// GetCurveInForce The curve in force at a moment
 	// (GET /v1/instruments/{instrument}/curves/current)
 	GetCurveInForce(ctx echo.Context, instrument Instrument, params GetCurveInForceParams) error
@@ -2885,7 +3153,7 @@ type ServerInterface interface {
 	ListMethods(ctx echo.Context) error
 	// CreateMethod Create a method, or a new revision of one
 	// (POST /v1/methods)
-	CreateMethod(ctx echo.Context) error
+	CreateMethod(ctx echo.Context, params CreateMethodParams) error
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx echo.Context, name Identifier, params GetMethodParams) error
@@ -2894,7 +3162,7 @@ type ServerInterface interface {
 	ListPeople(ctx echo.Context) error
 	// CreatePerson Open an account
 	// (POST /v1/people)
-	CreatePerson(ctx echo.Context) error
+	CreatePerson(ctx echo.Context, params CreatePersonParams) error
 	// DisablePerson Disable a person
 	// (POST /v1/people/{login}/disable)
 	DisablePerson(ctx echo.Context, login Login) error
@@ -2915,25 +3183,25 @@ type ServerInterface interface {
 	GetRunResults(ctx echo.Context, id RunID) error
 	// CreateRunSamples Add samples to a run and quantify them
 	// (POST /v1/runs/{id}/samples)
-	CreateRunSamples(ctx echo.Context, id RunID) error
+	CreateRunSamples(ctx echo.Context, id RunID, params CreateRunSamplesParams) error
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx echo.Context, sampleID Identifier) error
 	// WithdrawSignature Withdraw a signature
 	// (POST /v1/signatures/{id}/withdrawal)
-	WithdrawSignature(ctx echo.Context, id UUID) error
+	WithdrawSignature(ctx echo.Context, id UUID, params WithdrawSignatureParams) error
 	// ListStandardMaterials All standard materials
 	// (GET /v1/standard-materials)
 	ListStandardMaterials(ctx echo.Context) error
 	// CreateStandardMaterial Record a standard material
 	// (POST /v1/standard-materials)
-	CreateStandardMaterial(ctx echo.Context) error
+	CreateStandardMaterial(ctx echo.Context, params CreateStandardMaterialParams) error
 	// GetStandardMaterial One standard material
 	// (GET /v1/standard-materials/{code})
 	GetStandardMaterial(ctx echo.Context, code Identifier) error
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
-	CreateToken(ctx echo.Context) error
+	CreateToken(ctx echo.Context, params CreateTokenParams) error
 	// DeleteToken Revoke a token
 	// (DELETE /v1/tokens/{id})
 	DeleteToken(ctx echo.Context, id UUID) error
@@ -3142,8 +3410,28 @@ func (w *ServerInterfaceWrapper) CreateExclusion(ctx echo.Context) error {
 		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
 	}
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateExclusionParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreateExclusion(ctx, id)
+	err = w.Handler.CreateExclusion(ctx, id, params)
 	return err
 }
 
@@ -3238,8 +3526,28 @@ func (w *ServerInterfaceWrapper) ReviewCurve(ctx echo.Context) error {
 		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
 	}
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params ReviewCurveParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.ReviewCurve(ctx, id)
+	err = w.Handler.ReviewCurve(ctx, id, params)
 	return err
 }
 
@@ -3270,8 +3578,28 @@ func (w *ServerInterfaceWrapper) SignCurve(ctx echo.Context) error {
 		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
 	}
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params SignCurveParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.SignCurve(ctx, id)
+	err = w.Handler.SignCurve(ctx, id, params)
 	return err
 }
 
@@ -3302,8 +3630,28 @@ func (w *ServerInterfaceWrapper) CreateVerification(ctx echo.Context) error {
 		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
 	}
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateVerificationParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreateVerification(ctx, id)
+	err = w.Handler.CreateVerification(ctx, id, params)
 	return err
 }
 
@@ -3368,8 +3716,28 @@ func (w *ServerInterfaceWrapper) ListMethods(ctx echo.Context) error {
 func (w *ServerInterfaceWrapper) CreateMethod(ctx echo.Context) error {
 	var err error
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateMethodParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreateMethod(ctx)
+	err = w.Handler.CreateMethod(ctx, params)
 	return err
 }
 
@@ -3411,8 +3779,28 @@ func (w *ServerInterfaceWrapper) ListPeople(ctx echo.Context) error {
 func (w *ServerInterfaceWrapper) CreatePerson(ctx echo.Context) error {
 	var err error
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreatePersonParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreatePerson(ctx)
+	err = w.Handler.CreatePerson(ctx, params)
 	return err
 }
 
@@ -3572,8 +3960,28 @@ func (w *ServerInterfaceWrapper) CreateRunSamples(ctx echo.Context) error {
 		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
 	}
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateRunSamplesParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreateRunSamples(ctx, id)
+	err = w.Handler.CreateRunSamples(ctx, id, params)
 	return err
 }
 
@@ -3604,8 +4012,28 @@ func (w *ServerInterfaceWrapper) WithdrawSignature(ctx echo.Context) error {
 		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
 	}
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params WithdrawSignatureParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.WithdrawSignature(ctx, id)
+	err = w.Handler.WithdrawSignature(ctx, id, params)
 	return err
 }
 
@@ -3622,8 +4050,28 @@ func (w *ServerInterfaceWrapper) ListStandardMaterials(ctx echo.Context) error {
 func (w *ServerInterfaceWrapper) CreateStandardMaterial(ctx echo.Context) error {
 	var err error
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateStandardMaterialParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreateStandardMaterial(ctx)
+	err = w.Handler.CreateStandardMaterial(ctx, params)
 	return err
 }
 
@@ -3647,8 +4095,28 @@ func (w *ServerInterfaceWrapper) GetStandardMaterial(ctx echo.Context) error {
 func (w *ServerInterfaceWrapper) CreateToken(ctx echo.Context) error {
 	var err error
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateTokenParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreateToken(ctx)
+	err = w.Handler.CreateToken(ctx, params)
 	return err
 }
 
@@ -4594,8 +5062,9 @@ func (response GetCurveAudit503ApplicationProblemPlusJSONResponse) VisitGetCurve
 }
 
 type CreateExclusionRequestObject struct {
-	ID   CurveID `json:"id"`
-	Body *CreateExclusionJSONRequestBody
+	ID     CurveID `json:"id"`
+	Params CreateExclusionParams
+	Body   *CreateExclusionJSONRequestBody
 }
 
 type CreateExclusionResponseObject interface {
@@ -5572,8 +6041,9 @@ func (response GetCurveRecordPDF503ApplicationProblemPlusJSONResponse) VisitGetC
 }
 
 type ReviewCurveRequestObject struct {
-	ID   CurveID `json:"id"`
-	Body *ReviewCurveJSONRequestBody
+	ID     CurveID `json:"id"`
+	Params ReviewCurveParams
+	Body   *ReviewCurveJSONRequestBody
 }
 
 type ReviewCurveResponseObject interface {
@@ -5911,8 +6381,9 @@ func (response ListCurveSignatures503ApplicationProblemPlusJSONResponse) VisitLi
 }
 
 type SignCurveRequestObject struct {
-	ID   CurveID `json:"id"`
-	Body *SignCurveJSONRequestBody
+	ID     CurveID `json:"id"`
+	Params SignCurveParams
+	Body   *SignCurveJSONRequestBody
 }
 
 type SignCurveResponseObject interface {
@@ -6250,8 +6721,9 @@ func (response ListVerifications503ApplicationProblemPlusJSONResponse) VisitList
 }
 
 type CreateVerificationRequestObject struct {
-	ID   CurveID `json:"id"`
-	Body *CreateVerificationJSONRequestBody
+	ID     CurveID `json:"id"`
+	Params CreateVerificationParams
+	Body   *CreateVerificationJSONRequestBody
 }
 
 type CreateVerificationResponseObject interface {
@@ -6912,7 +7384,8 @@ func (response ListMethods503ApplicationProblemPlusJSONResponse) VisitListMethod
 }
 
 type CreateMethodRequestObject struct {
-	Body *CreateMethodJSONRequestBody
+	Params CreateMethodParams
+	Body   *CreateMethodJSONRequestBody
 }
 
 type CreateMethodResponseObject interface {
@@ -7377,7 +7850,8 @@ func (response ListPeople503ApplicationProblemPlusJSONResponse) VisitListPeopleR
 }
 
 type CreatePersonRequestObject struct {
-	Body *CreatePersonJSONRequestBody
+	Params CreatePersonParams
+	Body   *CreatePersonJSONRequestBody
 }
 
 type CreatePersonResponseObject interface {
@@ -8482,8 +8956,9 @@ func (response GetRunResults503ApplicationProblemPlusJSONResponse) VisitGetRunRe
 }
 
 type CreateRunSamplesRequestObject struct {
-	ID   RunID `json:"id"`
-	Body *CreateRunSamplesJSONRequestBody
+	ID     RunID `json:"id"`
+	Params CreateRunSamplesParams
+	Body   *CreateRunSamplesJSONRequestBody
 }
 
 type CreateRunSamplesResponseObject interface {
@@ -8821,8 +9296,9 @@ func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSa
 }
 
 type WithdrawSignatureRequestObject struct {
-	ID   UUID `json:"id"`
-	Body *WithdrawSignatureJSONRequestBody
+	ID     UUID `json:"id"`
+	Params WithdrawSignatureParams
+	Body   *WithdrawSignatureJSONRequestBody
 }
 
 type WithdrawSignatureResponseObject interface {
@@ -9143,7 +9619,8 @@ func (response ListStandardMaterials503ApplicationProblemPlusJSONResponse) Visit
 }
 
 type CreateStandardMaterialRequestObject struct {
-	Body *CreateStandardMaterialJSONRequestBody
+	Params CreateStandardMaterialParams
+	Body   *CreateStandardMaterialJSONRequestBody
 }
 
 type CreateStandardMaterialResponseObject interface {
@@ -9473,7 +9950,8 @@ func (response GetStandardMaterial503ApplicationProblemPlusJSONResponse) VisitGe
 }
 
 type CreateTokenRequestObject struct {
-	Body *CreateTokenJSONRequestBody
+	Params CreateTokenParams
+	Body   *CreateTokenJSONRequestBody
 }
 
 type CreateTokenResponseObject interface {
@@ -9539,6 +10017,22 @@ func (response CreateToken403ApplicationProblemPlusJSONResponse) VisitCreateToke
 	}
 	w.Header().Set("Content-Type", "application/problem+json")
 	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateToken409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateToken409ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
 }
@@ -10355,10 +10849,11 @@ func (sh *strictHandler) GetCurveAudit(ctx echo.Context, id CurveID) error {
 }
 
 // CreateExclusion operation middleware
-func (sh *strictHandler) CreateExclusion(ctx echo.Context, id CurveID) error {
+func (sh *strictHandler) CreateExclusion(ctx echo.Context, id CurveID, params CreateExclusionParams) error {
 	var request CreateExclusionRequestObject
 
 	request.ID = id
+	request.Params = params
 
 	var body CreateExclusionJSONRequestBody
 	var err error
@@ -10551,10 +11046,11 @@ func (sh *strictHandler) GetCurveRecordPDF(ctx echo.Context, id CurveID) error {
 }
 
 // ReviewCurve operation middleware
-func (sh *strictHandler) ReviewCurve(ctx echo.Context, id CurveID) error {
+func (sh *strictHandler) ReviewCurve(ctx echo.Context, id CurveID, params ReviewCurveParams) error {
 	var request ReviewCurveRequestObject
 
 	request.ID = id
+	request.Params = params
 
 	var body ReviewCurveJSONRequestBody
 	var err error
@@ -10624,10 +11120,11 @@ func (sh *strictHandler) ListCurveSignatures(ctx echo.Context, id CurveID) error
 }
 
 // SignCurve operation middleware
-func (sh *strictHandler) SignCurve(ctx echo.Context, id CurveID) error {
+func (sh *strictHandler) SignCurve(ctx echo.Context, id CurveID, params SignCurveParams) error {
 	var request SignCurveRequestObject
 
 	request.ID = id
+	request.Params = params
 
 	var body SignCurveJSONRequestBody
 	var err error
@@ -10697,10 +11194,11 @@ func (sh *strictHandler) ListVerifications(ctx echo.Context, id CurveID) error {
 }
 
 // CreateVerification operation middleware
-func (sh *strictHandler) CreateVerification(ctx echo.Context, id CurveID) error {
+func (sh *strictHandler) CreateVerification(ctx echo.Context, id CurveID, params CreateVerificationParams) error {
 	var request CreateVerificationRequestObject
 
 	request.ID = id
+	request.Params = params
 
 	var body CreateVerificationJSONRequestBody
 	var err error
@@ -10842,8 +11340,10 @@ func (sh *strictHandler) ListMethods(ctx echo.Context) error {
 }
 
 // CreateMethod operation middleware
-func (sh *strictHandler) CreateMethod(ctx echo.Context) error {
+func (sh *strictHandler) CreateMethod(ctx echo.Context, params CreateMethodParams) error {
 	var request CreateMethodRequestObject
+
+	request.Params = params
 
 	var body CreateMethodJSONRequestBody
 	var err error
@@ -10937,8 +11437,10 @@ func (sh *strictHandler) ListPeople(ctx echo.Context) error {
 }
 
 // CreatePerson operation middleware
-func (sh *strictHandler) CreatePerson(ctx echo.Context) error {
+func (sh *strictHandler) CreatePerson(ctx echo.Context, params CreatePersonParams) error {
 	var request CreatePersonRequestObject
+
+	request.Params = params
 
 	var body CreatePersonJSONRequestBody
 	var err error
@@ -11161,10 +11663,11 @@ func (sh *strictHandler) GetRunResults(ctx echo.Context, id RunID) error {
 }
 
 // CreateRunSamples operation middleware
-func (sh *strictHandler) CreateRunSamples(ctx echo.Context, id RunID) error {
+func (sh *strictHandler) CreateRunSamples(ctx echo.Context, id RunID, params CreateRunSamplesParams) error {
 	var request CreateRunSamplesRequestObject
 
 	request.ID = id
+	request.Params = params
 
 	var body CreateRunSamplesJSONRequestBody
 	var err error
@@ -11234,10 +11737,11 @@ func (sh *strictHandler) GetSampleResults(ctx echo.Context, sampleID Identifier)
 }
 
 // WithdrawSignature operation middleware
-func (sh *strictHandler) WithdrawSignature(ctx echo.Context, id UUID) error {
+func (sh *strictHandler) WithdrawSignature(ctx echo.Context, id UUID, params WithdrawSignatureParams) error {
 	var request WithdrawSignatureRequestObject
 
 	request.ID = id
+	request.Params = params
 
 	var body WithdrawSignatureJSONRequestBody
 	var err error
@@ -11305,8 +11809,10 @@ func (sh *strictHandler) ListStandardMaterials(ctx echo.Context) error {
 }
 
 // CreateStandardMaterial operation middleware
-func (sh *strictHandler) CreateStandardMaterial(ctx echo.Context) error {
+func (sh *strictHandler) CreateStandardMaterial(ctx echo.Context, params CreateStandardMaterialParams) error {
 	var request CreateStandardMaterialRequestObject
+
+	request.Params = params
 
 	var body CreateStandardMaterialJSONRequestBody
 	var err error
@@ -11376,8 +11882,10 @@ func (sh *strictHandler) GetStandardMaterial(ctx echo.Context, code Identifier) 
 }
 
 // CreateToken operation middleware
-func (sh *strictHandler) CreateToken(ctx echo.Context) error {
+func (sh *strictHandler) CreateToken(ctx echo.Context, params CreateTokenParams) error {
 	var request CreateTokenRequestObject
+
+	request.Params = params
 
 	var body CreateTokenJSONRequestBody
 	var err error
@@ -11501,524 +12009,533 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P3dbhxJlieIv4r9WVNQRJYzGKSozBSJAoZJSZ3q0leRUmZPV2SGG90tGN7yMIs0syAZldIfvdPAoue2",
-	"52KAuVgsMLs7193AInuxd9nYu0H1M2w+yeKcY2Zu7uERjKAoZdaMCqgUw93t2+zY+fyd77cyNZkqKaQ1",
-	"Wwffb40Fz4XGP0+E1fOjkRUafuXCZLqY2kLJrYOtU5EpmRtmFbvkhWVnYqS0YBqKFPK8t5VsafHdrNAi",
-	"3zqweiaSLZONxYRDVZNCFpPZZOugn2zZ+VRsHWwV0opzobfevn2bbE255hNhXTeOZ/pCPH6w2IeXY8Ey",
-	"eHnHsCKHJgt4POV2vJVsST7BivOVXfk3Woy2DrZ+tVPNwg69NTuvXj1+sAX9eZyLyVRZIbP578R8sSNH",
-	"LCsLIe12NlZGSPZazFmHMyjPCsM4O1cqZ9lYFZnoMjvmlk34awFvYMIKkQ8kdFEYywwfiUNmhGB2LJia",
-	"Cs2hlTuGRW32BtKPltarGm/U123obG3e+dUTIc/teOtgd+/zBNYh/IZZt1ZoqPPbPxxt/zXf/mN/+35v",
-	"eLD9zfe7ye7e52//zVZYLmN1Ic9pcqSxejYR0ravUBHesyIX0hajQuiEccOmyliRs8vCjllhDdMzaZat",
-	"YtXITVfzcWgcu/2Cn4vjmTZKt3c7leLKDjP8ImVqhMsx1eKiUDPDpvxcHDJ+ZmBYI6Xx7ajQxuKrMIrv",
-	"ZkLPq2FQdVvrdtn1D7p7MpPLjoCeyfd7AN5CeTNV0gg8kF/w/IR2K/zKlLRu8fl0WhYZ7tedqVZnpZj8",
-	"5m8MdPT7NVt8QaWo0fpQn/JypPRE5MzMpeVXCbvUSp4z2JFMacbZBS9ngqmZNUVOx4eqPWATX3Yg//L0",
-	"+bOEcUY7mF2OhRaMMzmbnAnNzkSp5LlJGJdsJl9LdSnZqBBlDkXcAWFKD6Tm8lywi0KV3Ap8i0vNAumi",
-	"Y54rYZhUlsHUzOHYvk22jpUclUX2QWcPN4owaqYzIJfGcitg454VQMTxJdGfDieaymCri0uRM15qwfN5",
-	"wvhA0is4sWpmGWejwiaMh8LwgiaeTwQrKlKEJNHYoixZIQcw/POx7br5eITdyIX80BNi1WshWcmz14aJ",
-	"C1g+k6mpYGWBhKmQLL3a9kdnG9+ZtLeFRA92Ai8faq30h+y2b5gJaLnHYBhnKp8zw+eGKVnO2WCrqH00",
-	"2GJc5rVFBmLxNtl6puwjNZP5h553oEx52I7VIRFXhbHYsxd8Xiqev1TqCdfn4kN3EGdUXGVCuNNhhL4Q",
-	"+o5hmZKj4nymRc7KYlJQb0+Fvigy8UryC16U/Kz84B3OueVn3AiWcQkzeQZrzbOxyJlUl0kYQ5EJ4EjM",
-	"eGYtkL9cXcoECVpnhDT0UhcWeZTC4M3NZeZGb6DG3O2xM5HxmRF4bYe2CzOQQFi5zM/mxKI0ucntwE62",
-	"DdZ9vRMxnjjel0o95XLuLh3zs5CJOyacHg20szBMXQiNM+B2wm0N95XkMztWuvij+KBH82lhTCHPk+q6",
-	"TMIlqDRcCOq1yNmZ4FpompXGoL/++uvto5kdC2mhl2KRYUm/wNIpXRVcshRpVMq4tbo4m1nBOiePjtmn",
-	"n93rd1dLEU1WlKZuqlUmjIFD+FDaws4/5Ax+Lcpy23EphZzOLHEBZ1rw18jtz0rheUl3HA/dDJgUyaJh",
-	"cGwHUo1GQuZwRJH9qCj4rBTu2nwlzWw6VdqK/KnIC/4S5+NDsxR4JO4YdkytbkMv4HAAFVKyIcUwnmVi",
-	"ak0PeVrXBnThCJ8DsXkM04Z9z/MCyvDyhYYKbCHM1sGIl0Y0e1KVZnashRmrMjeHOJPYh1KMLPCFzKLU",
-	"BV0S8ryQAqWqEZ+VlnXMmJi9sqSrX0n8cCLsWOW4FadRP77fOuPZ62HGy2xYqsuhVaXQ0IPhlBg7cZWV",
-	"M1NciKde2KX9C7uD262DrVzN4KJIQCqjD3b7/aRNNibeFJa8anNSyOGUGzMcaZ7RNHy/su61a/4wIxmr",
-	"iTKZyLmxRVbY+ZCX0/G1u/EIP3qbEIcDi75hOeD1hmo0HBWblpxwmXOrdIv4fzwWwEFegvDPRrwoZ5r+",
-	"pa12IXReZPYQfyg7FtowrgXj+UVhlJ6j3GbFxFwrDkI7z/hEUH+uHlOh3Wp+udYcxM2ZLL6bCfceVssN",
-	"QJQbj/pqqM373QqwlUtxIUrjdBT06b243N6ioogK6qH5bsY1XZTvsP/VzJaF0MNMqddmmL+3wfp2jJ2h",
-	"PuKP4v21BfqUDdf7Quhi5G6MRUpQ3/Zvfv3gDUjdURFi/rjOWefx8Vc7x8dfddmEzxnQVsbPeSFB+LBm",
-	"IKWaFCChoMzeYw8cFd7rJ4wDJ8RenbKHL47Y6dfbn+9/yp4iFWaf9/v9BwOZ8bI4czdK3DwdsZKfKY1H",
-	"9Y5x5JsZYQ00zNSlU569hxl/G56os78RmYUJra6mF6ossvmGN9tDlErDpQb30kjpTCT+3jLVjbXxFbU4",
-	"1He/cDa5WNYovfyaWKNwyyWxRqnWK2KNcrULYnN6XqPgLeR6rR7UiPU6JWqk90YUdh1KukGpBl1co2Sd",
-	"yq1RYBMaBzwu0bmyVKAMAym5leIZ1skjIracfCEreW0338aSzx/ihWpsjbYNu/TcLD+OyUpisZoQNPdJ",
-	"fScunsPamrUv/eI2ig/YyjX8po0K++3RtNuY4lxiRSA74AT3tlbeAf3evfgO6PX7/d2WPXYkeTm34lpq",
-	"X6fXpLFf34yRbH0349JeV8R15vf47VvkDq8t8wq+ae5C7J8r3zrNcUMbinCScSoNtgyvvwzsBIi/WoCw",
-	"CyIxCMGmx752KoTFz603iwxkdT6hDsMn01IYlnGt5ywtzDBYNlJ2JtBwkFaPSHFGSu8CrlprRe4kw4H0",
-	"3zFkRdjR8GrnaFiYwOhA2WpQmZKZkBa/lQn2hrv+ONHh8WlUZ1kIU7NlXBYyV5esM4WzJK1XI3heSGlz",
-	"h00El+zxKfO1HHo2YSA/7f/0t/9xd+8e+3XCMjWZKMkeH7/YfnrKpniOgacYaTVhEzFRet7F8Zb8/FzQ",
-	"7IO+ZizKnFTOtBZgTyGjS2HY1X/79332L/+J5UU5Q8r4L/+JjYjHU+VsIti//OCHyydqJi08yPWceToC",
-	"zI0NdRfyfCBhpyVMg47adeO7GS9h97t+1Hg9nmVa5IV1M6zF+ayEd1jw9PkLGLcYSDTTHTJe1cWmQhsl",
-	"ncnD2wK0MLPSErdYP6e5yIoJL80iRTmBroJRHBWoEy7nzH+M6lTBc1i4iuxYRupk04upzG47oxndzLmw",
-	"AmdtiMrHJdLPKunAn5qhPyGbUZ7CDGlHDsfF+Xg5zxFzz9cJLFWdcAXdSpV+jfW13Njv/ZenAolZ2IY3",
-	"nuGqhvUpbrIV7Y2h2xuL+8zLS3dZ53IsJEv9LkvhKJJdulvfUvG9tdvid9FGz2d5YR9eiDWoef2AVBJC",
-	"Qz8K2tBLbliupEiY6J33WKpnspdpwa3I04SlSG17RGqr33w61eoifqIFdFPkaW/RLSGBHrRZ9oHb9pST",
-	"rH+ooOVQUXs9jYXnVmzbYiLavs2F5UXZzkROubZFNiu5NgkrZFbOULnLvZlVo32BGyV7rV4W8TXM7ZYf",
-	"YLIVeDDX+jfL1vGJOt9wFcWFdwpaS5yJdsuCPNMYgau5ra/HHG8Ps2Tz0AUBhBk3usydrvnAqZaRkfMX",
-	"cGSsC/dgpgsrdMHpspvOzsrCgJnsfFbkULhFh1C/VwayfrE4DQPcL6BeZlMtMpELrIoWl53NW26bgQw+",
-	"U6XgRjifHj/TC7trUkiv8FuUFlGU3HB5YQlnVuSLM/0IPmdIWJDFgMpZpmZlzpxx0ZfF2ZIsBYFA5Eh8",
-	"sC2cmZS2ZEq26cvxPNraZ0qVgsv6sVkYc6C8iwcq0ongVoAece3ciQ6ZnJVlcwRjDltForfIJf5tw0Da",
-	"2X6ohcy5pBxaLfQ3t6uwY6EjI4Jz+kLWgHoEVDsXdS0xaogvCyPcwGI18eLkrSMy1PQMtFLRbEeVkT2+",
-	"dShaBPMTnTpbmU6ArcLj1EpBDZwbEEOXrCM6vflvYGkmghs8s8haxkv5zgvWLs9UPfQ7LkxTUp2SugDq",
-	"pmol2a3mvc1jEF76qyiiXVNUEx6wtBL54c4jmT9NBjKN5H140xT14VmQ1oFOFUrCsyCfYyVawJsLEbi/",
-	"IdlhE5YGcR1LgUw04+UQRHZ44ORyg7VMlFRWySKDN7kuRjbtsegp64Q5AyLoNkyXuUUwJEeRfGUVEBbY",
-	"N5kt5yxUQmZ2lICUfo3iH5fnoucbRLcDv0qMW1bIc2HsARaR4jK4iJpSTUVNOENxCYWDB8Eqi45Llcsi",
-	"vK1kuL0+myhjGZB4aQfScyXUhkkqB6ivhbHnIIoSm0IiK+sYIQYy/YuHL9nOxe6O1ULmJu322OPaUWcz",
-	"WQpjYtJRFgY12IybgQyTmrizCIWDkROPygh4CmBuJNvts0Y/BxI9bRLfDlVQLVUHiTo99ZIeaxBMcN5K",
-	"g3A9LOQw51aknhTXF6OixHomnZ0bzQC+AjbheCuX5jAa9R3DUnE1heMa9qlJHRkt7EDWu1ztL6XDXCbY",
-	"a6S5MIdO+S9nkyVqtbpCrUWVFivD3PHaSrZi7deSsxVrwvCr6GRVCi/sid/7W8kWbnIiUvWpRtokL4Q+",
-	"FxIpETAehQGRcKrVqChFRJQcOU62rrZh7NsXXOMqwCQgmXoKrsBuIuiBnw389YRnr5+PHhXWP/hycVbw",
-	"+Rc8e31cmxl8fHIaZod+uyk6daN66CYIXz6OZsl9TVN1QjOFz55X00X9jeYMHzxwE4c/fDvmsXxAc4eP",
-	"j2sTiI9e+Fl84SeRPDYr3U0bNffmrIaSx2k0KgICguA1GkYQasP/rpEwwZO0QF6z5XK9VNumAL1JFr4i",
-	"FSfQOtyJF7w0Cev37gHx7ffu379/rfbz/v37Nf3nvfZeWa3KJ3CVmg31gKdjcTnmGnl3qIR8qwzrPD59",
-	"zj77/LP+9l7XswTBCxW8z8pCott1kwNoE0xRZbGmtcCVKNXlmgVw/cWaH19yLUFBsEGHfJF1e9TgeVz3",
-	"6vU0OlIbdVKbtFY+h5bqZFa2cjrVVQjMYyf8FJbxspew47KQPXY8FpMe2/uMdXbvf77bZfv373YPWLq7",
-	"vWfSAXLtpGk8E3Mlc/bjP+7Brd1x/e4ewqd3TYr+PuGbu+z0wSFL96ASZi8VMArSiGwGtMd/Fq59rBH3",
-	"2yFLT7b3qQyLiiRQ/UDyM3Uh2G/we++YhWw7+o9fsp/+/h/2qOX97V2TspGaabbY8kCGpnfjpnf7Vymz",
-	"QtaKOHck/Bp1wmoUeJj6pQZTtpVswXRsJVt79AuGs5VsQX/gXf9qzcsBFnWXaoC/7vq/9sKzk33/1/5u",
-	"+A7qh52xJMDi+ZR/NxPgFG6EZRQVwTpwjD/dn+nqaE+Bcshzr8nywSr3dvfWCl4Zbn/zm3/TJpNgSNGm",
-	"Fgqv/if1E/s6sDSCQydNXUJ2H3PY5CXwypkSo1GRFUJaZKTrzIFJSWTO1AXXBZeZSNFJSEymdp4Qn0wn",
-	"2pDKSgqoHZrB74DsJSx1UiSyYekIhO/E1Ys+SiiKDySI4i1qbZ4RmRhy2yoDVhwcSM/+6/qVsUo/xiuj",
-	"2MK7LFL7rJRl/XdQBse0mbm9zdQer8ziwB9LNlG5KLfFdzMy+SqdC33A4Mbhmv3hrJ+ws91vEvdgqHRx",
-	"Xkj2B3z23YznmoNk675L2NneN4dMKrntKsDaDfDX6VP40+lLOo5NliyVStK3vRBeMsS3abfmPLaej4DT",
-	"It1rm4jl7MRxCxMB2+GMJCQ0a3iFQGAu1jJ1J1vVpm9r178DGUEXV77heNUSZn78p85f/b//599+/Vfd",
-	"n/6n//vH/wusRpc4e9F3tHK1Kbu1uVs9saTeXn2wXGwND3ZGNFhatdEZy0ctRinHPrNcnGsBZsURG2kh",
-	"cjVJmITbik0j1U1kZSIv2eGF0KaV8X0ZGSDhZND3RKCCFEihcdar+/H7nd1ev9dvV907zywlrzvQD8OH",
-	"b5MtsFWaNlVmZsEggt6/1BHqnlO9SeU1b2u7YT4q7KOSn7dRkrHgF4UwloTK6ypCget0zDUq5op8vXC8",
-	"JA6GbFWaBoeehs2oMLaQmaXza7xwMiKJZLW5sQy8/MoB0VdwGlB+b+0evRqCanz5pqKPmP+o/XwAl1Dr",
-	"+m5b15G8XtdzJLzwtWw7Pu5+ryaMdXCT5ugMILxiZCZRL3LtZAZyvkb854V4Fr4G7a0qWi8p8hMM2hTH",
-	"kiR+ppRmvsMJO9dqNoU4jrmj5IWky9wU1fW2vlMy9PEFdKvtQNScx5qxEhADKPI6gYZLxAo9KSRRlM6M",
-	"BGrnelW7Yrs3VNqj/vC6cZ3gR28jPY3JV5DWMPW5uCio66Yz37nqJp5z/9N/uWS/ZZJd4riZyXgpbjoA",
-	"NCtdOwL6yn2PiiGFtwMvy+ejrYM/rENtvmmywS+0wKBnJRmXLNDqcFRrLjNk7NXCbUOyEZDP3nB9etfg",
-	"lFvACPzk0wdLOAQ0/S7s7Xe9943ldrbeKTmlTyMPrPowXh2/esoyVcl2S5yHghZpgbZ6Vmm4FtH7yn0d",
-	"iJ+7Ca8t5z4DZQRu5mHGZV7k3IqlpCl8AYr4TGnhdOUpn1mVBg8jlGiugLZjxWgiL4vXgnVQEIJdRyps",
-	"mKKIk1hSuLs2GSNqdOx72UbL/FhBZyjbFYFfqkvXOIV44CHPHecjYaeVhRHoIGRmE/hHeuSMNKIz7XxR",
-	"GNX6Z/jrUGTxIL/08fGCzaBPqEFXUjAHYkF+JbQ8dIox1AtvuLg3Q9S0i/zWe+XazsZKGWE8yoKpBO6E",
-	"8dKoyrbgmAbaA1yiRiaANDgDYrURnbh+Jmg/5o1RheHe+riirnLzmi42bPyPQqvhmMu8dIu8uLngkzox",
-	"MBSa6TwW2aXQoFeZWuffoFU+y+AYFXJUyMIKvz8PSbXg50UKxrUy4nrvE8KTIAIeGL1Fti6pY3Z42d/R",
-	"Ps+Wxbu6ffbbaIzn9tvOZHMaG+L94m1SEz/r1z2KU3XbDjQQLEaRvBxYs6CWCEyzZzgq+hpujaSmc6nJ",
-	"iZFKZEEOa1XCIkqOfKR0dr1mq6H3WeJiMVFkAsVNiiLU+nLoGTdFqw/P3Pk/eJ/aKqKlkGDhzU0r8buR",
-	"fshr+a6/mWeTCddzkj6nhRZmuahegADFL4giZQLY6JrF0hlLGCLE1AwVSoqlE7iE54ukOm7sMHZ7X58u",
-	"fRWXaidNJUc/jLh+xi2QFn89cZvWXTHazC0LxgZcAb8bEvJci2a4bVjRWi/d508Ks6lL4o030AYKxsZW",
-	"WtAOcDOcKH3tlvySm6eKlAIRCNF1pZ6JKxsBBi0sg9mqVxf1Z50pfxYLrRuozdFrj8f6Tjr6PM/NQQSX",
-	"Q9rOTpvCrps4S4kqCYRDzWymJoJEjaAeHM1k5qCy/vTPyFFC1CHJIAMpjC0mDqtHZmOlTRJsN8Fyzpzl",
-	"vPLjqPmcgObce0Idf1VpQLPX294bQOT16xkEwznYfXOhBzJ19ZNLMXg4pz12VKFIGas5SocwVcY7vJMC",
-	"2fQG8oUWcIHgtY/3OzFEjiWeGepaAUZt6Mk0fI5q2oHspESmUnARkvkQv4SBp91WgwBN1CIhRM0VOEmC",
-	"HkmN3IzGsQisg29h+BSz4fAe4DuYeJAIjOgeOA0FeWn8zSw/J2XncjfIRdUq+nMSPVz4Gt7xcO5b9Frq",
-	"fHi1AlkObqhc80uEA+CsVOeN5eVXhWn3zHObFCr3ljnvr5ETB1CW+Ffo49A7n5lCgoepXrTRxeB4Q2ek",
-	"+37FbK0UXd1mXJu+OY+IoOypKv90f2nt1VZfU9q2Y2H5Jt8OVygb3fEdbqLyaRDP5nxXKxtvvtpW84No",
-	"dDAJB8pvvGoN2uZrKS2mFdiMDj+XYkE/WEHv5QU/l8oAmYHImOonHIDq1i9sA6yJdaQi5b7SIF1ppYiS",
-	"1YgiqoXwA/KS6eMn3k2KtDarEDaIsLbapKKjCIPCdgNpdKbamynZsqbPz1qGLAxWLAg3qb3QtQ17TW27",
-	"jy7RyxtWHcwSrUYDzc9v2ufg8oZr2R5Lu9vv//hDp7GoaH2qTXV3p/bzxipSEuNuPB4SqNdc9yh0dRi3",
-	"3I7dVs6ZL2AIBw0L3HCkJAIv0683tc+okTpkfTrPfqvdhjM17a3muYmmMnQ1bOJomZbMYbQxF05XskAg",
-	"WvdhdKCWEtTToMRtqvcxfgPREnvsqHInRv+KKSE0DUkdnx6GaB6KFZW0pP7yr3+9lWx5p1zsNsUyreux",
-	"WfX5BdV64iuNXh1V9UdPT0JTYfBOYtk0xKvmLHILHiA1G/l69Y14UYp8WDmCLEZ7VdYA/MgZfwvy05ly",
-	"Y2If9chvuLsZG3pr1tvNLKe3afq8Bujhepq5qVHn5naTRcPHDS0XTtG6plb3w2lCY5Vji9awvu9XaBHb",
-	"KN4DF6Dd5iFAb9gIowsRtLYQuUPkCcIi64SggN86cki+mVH0d/eQ7dIdQ/r33o0hd9Zwg34Ye4xswBNf",
-	"Z8vstbjIubDSdwoUXW3F98w5+RZST/xNbWpUaQNyvZzz04IwAkWbhLzkjq/KtG2wBScAkKuGFN0KjVyr",
-	"66w+bXlVM2WvBd8ejyAuH+nsXYuNvkZRtu1HKWy89SSyJUuyftB9ba0W5Tu/c9yNhw0kbHcbHGvzVjeP",
-	"w4B1sFiyeXyXhd23B5MvbpuVExgBim8whdVBWkuB0Viuun7EjWl5jG1zG6+nfH8prmyL0p0MIYL0ig4j",
-	"TRfyNeOWnSk7ZkIChKWfxcrICTBEhuLSwCEf/nb+XFwLVzRw9bWzdDv99c5Q0FrUUFNp0jhYbWvv/eha",
-	"Qgbg/nFOe7zpsmdinz2W5qhTkM7lbkiXaHpAIQP4jCEcKJso1Nxyyca8HFUgAJaX3ifHhefVvfhSiC0Y",
-	"icthOHxmOFJ6aPZSiE/YMd/ukYEcreik5hxIahm7DWHHFI4XJg+7UY9zQwil0EJad+lvHeRWstXarTWF",
-	"CDf9D1zVqNL92lfsXj4Slyeh+kdKn+6h2OANFEtjnjkDSwOmQiA9kWEudh+uRLIA4ktyLOB5uwr1S8FL",
-	"O96QJlSMpZ899Zo2Yj5fc2qo3ee/2/JdOKHCzV3ummrb3I9P1wvJb+58QsiJMJC2I6WdgwaKQ1hXwv8s",
-	"8i/V50P4eE31xooI/dXgL+uBzixUuhL9ZaHOVRHtWmQQPjzfoLpNVT8hZv4at4mFkddUI82FaXS9mpNo",
-	"yqModbdCoTutW7JiJdoiGB0yCuJpeXEl8S5oiaNUiXf+126nNiJzPt1fKzDnm2aCmX7y6d23raE6j+Xf",
-	"ENDResDQTQNWBcO21u0Xs1vftGCUPQazn2bHx18BLgjVDikzyHLlgvoje78ToTBPEnFarhA5URX5bXUt",
-	"Ihw5Qyz/lJ64uKLvsqH7nVSwY+4O1DPZRf18UJPcQaBU3BM9B8xUywCzXo9PQpG3cGvQHLXtPXebh5QF",
-	"ojSCLK2dwAChUaHk8rXp1rRq3HiBuNVa9rqg9Bb++yhaIT6JRXYBh9D992wrqX2I7VaSvf9Js7iVbIXJ",
-	"be2Cs3psCPO7St6dKuLhr9cAveOqXXcCKk88BCIkeJv4eqLcRKQjgKhjG04N7isUkNcUmxc4TDcHbo3x",
-	"MLWSvUDNKuv5zaSNiJqsL7Jd41xFyH80Qd4VihXETEKU2GVTCltPw1CP5FqpYau+fOu3tNnAJOyn9BRL",
-	"NpHJrxGqGmtaqcZ8P9oXlKLLNuStqoGG+LTKUTw2OFFkZ3pGqIMVplHC0lJdOnoKl3AaIi9bbJdUup0r",
-	"WR7tfa2SFS9/NRVyWbI1N7LCMNcFF5N8No+6DxUwimLu/Oanv/9fupiPLciYyxxIkD9YdOUJJuGshM0M",
-	"rVJeFG7mk6lVFpJcLExnPI9+DhenKihJ1kFuXhYRv6EhC4PeXSC813j59WzbkE+4FbT9b8SjrBV164FC",
-	"uQn4SIeVQKVFJooLkd+MWNyIruWRFnlVqaBtXstI0lR3RbfXmndWm46+oitVja0LWQXkbUZbXo5jXYNX",
-	"3pZcI/iNgRrbFA4t8tkNnA6M73C9T2DxjdV50XVNkEruA16WPkzMv78JQnXT7Eu9ap3lm+CCPPB4p94p",
-	"TtrgMuowQhKK9m0GyhhM5DW1LM10YYuMl0O0VqTAt/v90F0FM9ZYIl9LthoUBgBLdnc/37+7vcd8GZ+i",
-	"cOTAqWwTMOZqmN3UXaU2uJt0x89FwuY37sUyCEyIXbBjMaf4BD+5KHRcjucw470liJpNlNvlo3KcMKNC",
-	"0E0aH8zqTfH9StUisDw+/pL9fo+FztH+S9jd3t0ff/jXv9s5vXFj3y1trG3HJ2y3/04NmuJ8wtsZibAz",
-	"/vXv8FwF5RMeqXpUTYr1DNHJG+73NaP+o1LrSyenUOgLLNPuyf6vf+fCmSTI2y6IqNsMA7IRSJnMl4eV",
-	"dS7HRTamGt0ZoXjPU8DxX+Qc8i1axoXzmCyjG4ubfCWm4BN1XrQiUBGo6B0DPqouF0ikefFqF69zWaly",
-	"eRpcEDZiYzyE4bU4sc2UKBvD9ToDN+mRY2PtwlAwbcPQiHI0rIJm243AsA/gnCzEk2EdhkEl21QJxcoB",
-	"qs+2mAtDwEYFbJ5Rt52NdRzIBmC6VKAdriSW7dbxSrwefSKaR+QxXZENcCfiWhfs2o1IM2jhvLgQcgn+",
-	"QwPxb+maodSSeo+dNKHclM31m4Skb6FGp6iLoVW9gsg/a1XlQF4LJBRDfi6GYzVrc45/FhgJR1Ny5Rxm",
-	"YVw3BZrdDMXAgY4uDMA7oVHPAEpwpOrq65ryfF1Ho5s400Slhmq6VmxOKP3cfb8E0DVyvYmX5rqgQ9+L",
-	"RmBfOLtJTOSWz2X7NmkE9xHBa6PwRH1vEOFE2319EkMNXYvV7atd3tcbatNucGGQfL0eXY/xl6e6kFkx",
-	"5c4i6xLPc1BPIg864blw3ptIAs/mlTdQgtZ579hpvTYzZPvBwR2wlhtBi9HMCMPMLBtXvqFoId7f2+v2",
-	"2KmwrLCBammxiD0OsOLuAgLK6RJVWAVEBYz9t3/d1NR317hE1K+i9Ti4WOH4TbIkr0G/d/9er+Veud5z",
-	"Ya37o7JTO1AZ1MLqmSROj0sIMdtWo20MFF8AqR1Iyu7YSYPrqEsVEyPQ4rKSpxxC7Haqm6rbgKGNgKXf",
-	"/f4BWQuy2Du3vdjnx4+XgtK8vhn0zCRR3ILH3ueffb5/bcbHG11m6+uNVtxyy/YB2JFAb0Pzg1SCX3I4",
-	"7u7YAhE4EzG4idfW1ynBEgbwZ7ohHcFsvybbbsNAOVrJvV+3Rk5n0ganbM5+y8767DfsbPfHH64OWVqD",
-	"63Hv3asQ15gOZL0c/Lv34w9XP/4Tob5+vv/pp9t7cGSeLYDmdUBlJ8+EPv/pb//jU67BaTa3CTHrGHso",
-	"8m6CMhFFM8mBXAjiO2Dp/rSk7uXsN6AXgqiUvLvT2YWfVztZ99uzblIDlBnIP/CEnSUsS1j+zSFL761R",
-	"xbfnCYuKJez8m0PImV6YmgaGcYtIDwlzGNoOuqGhLMrYYNbv3xWsT/iQhRyVJEkm7Kz2zmGfO7deMKWS",
-	"MdpdZZw+zljOdAHHIBlI90ywHPZ1WcjzQ4YWUV0In+v2DDouxTmFcVECeaqAah7IvBiN0HUYUx51E3Ze",
-	"7xdYCCbCAoD3Ofst2/Uzsf/iCQKMT9WlcBuL//jD1bdnbv5gwsXVdGi4ndF0hI86uzj14tvOT3//D2c/",
-	"/nDVhfjhJaWGajQywlLhOWzBJTX4ZZv3v2ndiMTNUMiwP04GkRvB4p7u7sy/3UuT4C+G0bg0OkAanwgu",
-	"Gy5fVP1WslU7Q1vJVjg4AOc6hfN7D/+LlVF4fTTAhQduxGt6QuGJf+K7Ev167ruDz34f9QkfPFIz/eJJ",
-	"+FVciOrXC9dR/PHwanoad3bx4XPX37fJVhTivigSckMYmhTenkZY/Ij8NCpKK7RJPI5M5aEWqX4pzrws",
-	"jHXJQthopvGGgA9pgVbj0C7AT2+ES/scE6W3De/rsWKae/Oct2gfortOuPvo3oKbCoFxMDtK+m/Tho/O",
-	"7t7nN3DS+beoMtrd+6xdZ/QCGdNNMRluEPKTF5jbf4ll1b+9SRQRzMFkapdEio9mZTlcKleXKnu9rE+l",
-	"V9ktlNKqvC6Ae6VoRjXHffN1Lg4q9DGawmtDRWhVbyCLToWabhJZju1cO15X6/Ke3kwSrS1tdFD2nPwT",
-	"HZSWhXeLuxIXEz9yroqAcdNs6N6n9Yb6yTqbJaisgGczdssDAyJ1/Y5vuwBDjVLFpJCFsURdlogWTs7b",
-	"XyX0teWW32BXhgloXcN39M/583R6WeXqEs9I5ZV6M5el24FUWpVwgjxp6ijRIE+viwKNgu36EYT0/Y3i",
-	"CKno5kGDlHnuJjvlBEu2qfOXxDS2QfgMG94MWLQxEc3BNZSZfgTXQP4sdHzjk7jKNF7HbSA1BWpP6vGH",
-	"C1ncUFpxjFlAmnDGC2+7hieXymP11uB7QAMzOSvOZ2pmhlA+vSmCbOz8ssbOXoJNnaJnFmGTgGyADlnV",
-	"T3FlNZ+q0ifGpK9LRQm8/K/v4JWXwfBvhWMDrUdVc33YA9lxiS1iHMHWKQMzTU02PUATzkBGqaG6CUtn",
-	"0nlIDb0LGsgzp4he7p2X3N6rGFSXhVkq0tR4sUgqO/T2bliGFANzWErUljakV6FtGqG98FkReROu1DD5",
-	"76IyEfJMq7tD5Y4HFi91ZnkhAxxoOipEWQrdDvY5EVwONwxF8O47bSYp+AYsqSFaKMKM5ISwkF+Ppd1I",
-	"aLVohgaO4wpxtiqtKX7b6mqZuLPvj1OElwdH3EN23QY6RZG3QFO05+eCRa4QJsOkNtckogKLO2I1TXVs",
-	"w2Y09c/J4W61m90LLaacFuHUiukNMsWXxXczFVKgT7kW0pIRZzYF4wivZR5PmODZ2P0AMjd5UiEfWVUK",
-	"jfhxP/4jhBtklhP4VgsgkWt3OLlNZ35fqVWlq3jDCnCot9snqvKGPWpsiGjSFgYbdb7RaPu+UWelmLTA",
-	"tDw6Zvf3733GpvQFIwca02vJ3N7un0aJqdFBSCsPjOU4CxRFSG9EAmi718ISbPJHCpETeFnkrABtvNuN",
-	"ajQiKwWDe8Dl2KcUueuCscFQH0Hh1utOViBUi3y6GxWbcjtuHY77wLHjSyuAyNW/2nbi2vZj4FOsYrDE",
-	"zo8m5EBnnN3r95dmiJ2Z9na+fPnyBaMPEBq9Foh+r5aMbr/fmm3BFrYtL9npWGnLDGHfBEri9g/U0tpV",
-	"erDoffXq5LHXw829+29cmb/zZ1oeIK/zWoip0AfumwO3Q9LeVl0RcF0UDL71Y4wAQlZ4kNU2zsH3ax6Q",
-	"lz75b2HZmRb8dTtML8Z9C91evrHlDxhnf3n6/Bl7QYVYIa0iRE2VzxOW7iAK5g7ZJiT+I9yvDGi5e5QO",
-	"JJzN49OvkPtP6YvCvT1wxflEuM+doSLg+hEjeV20EY3rupmt8BE3FJgu2jHTjr9inV93W5mnNrw7DAB2",
-	"H9v5FH18ZcT7+dh9y64q4UrXrJqGjUpubygXXd0kI+HVVuLH3zarv3d50/WpsDdxy4+9KXwOdo20hABW",
-	"EXP60BFlKao8urbyGxP6osgguNKZelvifUiUK9dgnGalDWPCm8Mj096gbGGGoOidaXGDwqAbXBMZs1n4",
-	"bctCnfiaNkEHjoXNpNrIDuXC0QMPdEFGNpFjCBJC4Qcho8MpOjRO0hNBVVqBeZK7DZWCxg3vsazrK/oO",
-	"QVq3H4jUdjAoL5Ewm0IBgcWyRRkB1GH7UhdWpERH8QE4saTsclyURCVybvkZNzhvnKb/bI5mdR+vzjpY",
-	"CRwuA6AX9/p3XaqPEzD0bh+ByNf0gKkadyIXNryBkRIm42tX3v9+jlVUsDlmGSvDcy8XG9YZK+vHZbqs",
-	"5OfbTkTA+OSc1BfnilnlA05GxbmzVW6YO8lha1QLeS2o7iK4xSa4FqGh1XgW5BmyZM/Faa83vOO41gVR",
-	"uQ3gnTdUCpPDgZBZQ5+/iTnIc0b1rYKsyrTJqhB/u4SFrmPXtvC9Sre+aiwLdSh836h5HQQuYk0zXi5x",
-	"9J1JTP5LaSZW9HX5F8vV1fWSC43FnasvXxJ2TPtOLAU3qNNvo2Zg+UJfTl7G5Mthz8eeXYdA6aAuUjUq",
-	"DBC2rDBRen/gEwh1qArBIQOrz49QxWgeshTI3ViUeTqQ/qap2CuP9Zm4GhI2k6PCUsCS0szMpkIbkbvw",
-	"KD6QazXb88PwEFUujSgGsNSJbTQ3uJn84LeSLd/ztQkKtviiVqF7eBLX6559HarHFWxQv82OaSGHM7PC",
-	"p4+INRJqWE+pLpdEGPPzoRGZkvkSX8oR17Qh2JkYFyFlQAGCI0Yg+ChLbiwFFtSjjWbytVSXS4CMV6ph",
-	"KuyuRTCuwrJzYckUgiPtzCTiZ8CMJ3BvUZQnyVMz6SD2w52dUDoi3l1Cu3BtWtxsHOwCXH3b254b2MYr",
-	"e6ZLx8Lt1sR0BwqzLlqcbzvxS9x+/Mn28JWPdtxQLKD4Nu7oNyyntOaAXf23f9+HmURlK5zAIjq9Ln9/",
-	"N8a5hL9jXSP7lx/cgRxIPlEzaeFJrudspLnzzaM0AJbygFWXCPDBUH/CNJlSEh/rWi4AawxkVQY+asQi",
-	"mqTGNwcu2Se8eHxKGzUkn/BkaiA9qI03s4VmQPo3Dua9AZiwIGfxLNMiLyy+T6CzoFJFSFGZo097ptAn",
-	"SxvwYYrG6BzciTSbgE4I4kd7ymq7LPXDzczbFBQ4XAo0S2uHCJKjELS2HoRWM5J1jVLBzNLiswSN35jH",
-	"WerIpKYxc/kv/2kr2fqXH1odRpZj8fojuakiwPmK+IBJZ91W07VYnCDar2+dbxGJm7WG7b/RsulgM1/n",
-	"4wopZJ2vZ2X7wllx1b4cS9fpqr9mm1f94XpOClf9rerrao82z1XbKQqTFtbdz4sbmhv64pK0BdBGm+Ea",
-	"R4fYr2YRULXytAwIqR0XCBDcnsmEScqHTGlNXVniWdAENg7/i27I7cV3C0tyEhvqmpj1lYXXozO9U4bf",
-	"MEWbuTlhJ2elfXghpL1Ft6VNPDsz3soipnome+T6CN4RzgOrx3P0s6CkIQ7UP/yOmfAU9SP0PMSJtdvx",
-	"1wD0uB7aYUMZeAHzDEfqkg5ZMczGoG1bn8cPq3gcKooeogR27KvExD/iogBfE+Nls3WBxyKJbkkGTXjn",
-	"ZB+nykOoOzfCtCUj3TVo0iQxhZ6u3z9PsNy6hGUtpP10Pz7p9/v9z3bv39+7t//Zfv/+/d3rfCw2hNHH",
-	"vTtc4txixHerWXhUlQrAEiokTCKmEAVlHTFe4qIJJPTOw1vvJoGOu3SBDt2NjnJzyRZ2WwzlHdYnnqYI",
-	"sX+lT13t3C65OWalfSRE/gEyEeJCbMrZEOV9L4kIV8detMZYwI6iI6uqfXd9ulk38pvmLmzyeBsulVOV",
-	"x9ETn17rE44WpUax2Di9ZKTYmC/dPhYf6byhsOtCGHOX5TBh05D4IBNN7RR82oZ7tAZEhysMKRoRraP1",
-	"Rtwo2MP1eL1U9w/81ytUJ89qGUzrSBTX5CVoLFfoW0RyrkkX0Ohm7MJPmsaQCmjtuxkqPAqF6feJq+Jt",
-	"9eAm7vS3MfnvijkfIeBbxdwsNcK2PXospGQC7WjaW75WrasyK8VXhbqZTcNdIWZFDkkD/j+QutSpk4qJ",
-	"2JAD95f9onSKY1j0OYKuBiK8u71n2CXXoHVPCOLGv6IKSLXTrh318uY10RRWqxLmcRNE7CDP4SBCuSSa",
-	"1PblkhujquuZhPuJTBFtpO0muaw2gixykBOFvb3s1tej+hCkwWVt5GsKTptlPj6ZSYywaNukvsEl4SIW",
-	"7iEoU+uvny4ZQ/P8DRHZzFysSx5nkA99wi3Y7raS6vfx6VdIHm+atWt9j9rKQ3zTMhvk+VJLw0bf4brb",
-	"PC7qZBYFRLVYrsnX2oNoLCGZC2AbJmwMWNe8ieRGrhvrG5RrqCBrDevUlbg2PHGzNGC1lF1hBcN5acUL",
-	"irtfrU9SJfhezQvPpJfgP2Tu9EW1Gr5jU6ErMPDk3QnNuoe5bdXWn0Bs/QPghr/nTHqbxr6thtVdSFG3",
-	"ZPZuihR1g+v5QxLsmP6uKhXC+9+FuAYMrKYudoHSwWSvEQwLNbtPQ93rUOtjdKF0rM5ysn3HhJeG4F8n",
-	"PBcDiYZiDOzaudjd8Z9sh/LdHnsIPpkheQAPdd8xlZ0SjeAhcQVLQ1sQAAc7JD1wyixfmqLMGs8KS3wH",
-	"hqaInMzYoAkrJCMM4Wmh54zbgUyj/ZiSjTYUc24ZUMJFpWBBkZORFPuIsXNVztGZLIUxi4CFha3wCeuh",
-	"bhts5ii92RqB3I3bcZFwC2n1PCbcOHqM9F2bhPvrtGUf39sscjpctSsu1mpAS0lSCOl9zzfipsHDcbhj",
-	"q/S3gaJ4QfRyKtA1w4Erzu727Dj50jSku8s41nUSTOVLFP2RvSzM/hr1Xc/wtYHLR6NbOZ3vmNPo/aL1",
-	"53o+9E4rLbli9RxotRU68myx3mEEU6qC28u2S62HMM83TQK7VrQa+d/cehAcVRsM4CuPGnxzg6jLd8+u",
-	"lCxLBSJ5GW7fO1WYPFynGPDgTMTBzwn1UvA2DT1K27JQupsKJW1KGdZoLKiY4nQ/NwkvDbYb8qZqCb7C",
-	"52CXN+ie5GM+C8nSWlFcw7SLcR2URiCKGE3j1U4PKZGm0kyKwo5JVXdL22qxT+vtq3dJbLHA4t3AhoCc",
-	"XOGzsZl2nwJi2UIuMrpe0HVS8+y1sMAizT3YYt2z1bDO4+Ovdo6Pv2IhlMAxYPf7P/3tf9zd7bNfJ+Bn",
-	"tuM52yogp3tIe5NDYir0kTWJ5/GoN8wU3tiBjpoB8BHZxoLMnuCbWuGGkRr7sMqXhm+kGkg1FaBNrTkE",
-	"o7duhwDxYRFLYUXaRW+5UmFTSoqk1pJVqseOsMvY1YHc7bu2KDaJh7LwDdeOgwR4+0xNJkqyKdLejFS6",
-	"D18csb1+v/f5NirU6JCaLjG8HOP2sjGLkBuATDs6AAsF0Zx+btM2dzs/rhZFk6r2Brss0DAPsLWIUDaT",
-	"MAyR+11AM4BZWYFT9v4XrQroasetzTg1UgbWWMy9DdF5wohrPWk7YzV27WZpP9uyqFW2DiG9lPJ+9Nir",
-	"8gJd79fSGFErrkPdF/6cXwj0qkdXXIL4QNSFG8Oy3ARPLnauWe/iJY669c716LHNUM0MEQi1mvRWc74v",
-	"F0Fw3ikJ/5pM8xJ8mpfo5x4ygOFXyBu8eH76EqV2bNfsfF/kb3eqL02aBCQXj+zSqdY9U7MyR2f0M+Ey",
-	"DyFe8iLuC+DUjAWjSBEHp53X0lAfsrQBvRHCHuY3RIhpM5874ljk6O9P2gaExxkJ4bmg4pYdZVpT5a4k",
-	"ey7l8O2B2tw6Ks11ySrj+JX34bBFB+b6cnFswe1Jj7fu27WWes8zficiU2TEWETxuUnuoNiV8BojJK2D",
-	"895TlBuQFtkHzWAt65snPddcb/DV8aunGNjtlZLuArtjGuSYoiwotU9ae4XuoLXpcfkeA6oVcmGFvN5x",
-	"6WZ+Z3XtVaxRWA+IaBOIo+aJj0GP6k52jZPZsvprp7eI2aQ/R63bqkPZiuy4kaKNWjc3s5NsalJo5q18",
-	"bzCWp5mailrQ8kyagyrcG6fmADZ4MMUduLQeDrp0TYM/NnQyk8aHgtMDauCE6sdHaA0zJ74NfHZEDUF/",
-	"6yRzY28Tzy9MS47ZZongkSnEVd2CIEHZr28c0rMiSX+cL7rN4bhc31snVLUSCWUhihsYk/cxsiV3o/eA",
-	"X5wJSpjfGgV9zSzF6fhvENyEVGAxaXXI4F+rf7PJJRXBCkdvdx3W4ohdKXzhxPJD1q97VSzOglR2M8Tq",
-	"ZMvpSjbsniu1YfeuW8KlfGXgJ9tjpENYtGcikTX6ZoMc5Qve6X5aqvXzsxuOS1LRhFaqWqVCbBVb/vXv",
-	"/MxSDsnOyV7XhYeyJ88fsN9WCSuRx3ny/Pfst1VKScAYhaCmoclTSm90+qBy9K2QhFx6e0xYwTqI62nB",
-	"L3MgUWGae2OqQ2XpHmIeamHsEO2GVL3Z+env/zOlo/WVQ90YkUpfL2K+JL5TtaQLrJiAvGwcvEtHQCzY",
-	"oIJrCPkbfXA2lRR5F4EA6HU15qhAMpDVLFTdVCPkJ10PDl3GSRJ4vXbygFVzGWEC6JnEONt0UgA/5+K2",
-	"DIYXTZQWLqqsiuMSJczrwvzVw/uhfdg7rkFEfq99T3euH+i6V2vYbUdUf/XgC2jpNK89e4JNUkLl+psT",
-	"1/QpRQudFueS25kWm0MMWyEtOCj4W3N5/i+NF/kdzN2FVnlXmhkLqsoxCvUckz4syajlmzNjvnfv08XW",
-	"Tr882t679ynrjMVVhdfFpZIIwoXgIWoUdQb9UYtz2RoDUfd8X3LrrSNCLs89MOGyGAljlyjwXuhCWqfb",
-	"SBBXDM1Er14ek8lfwahsAS+5D9MezyZcIhQAJd+FmAMzVpdeN9KqTnBXQwVn49k+9PV2CBUo6RRnRVnY",
-	"9sRYU+ru8gQNK3UKsB7DIl/1lp63vKc1bBWAX708Xl+kDfUMcW6XOEfyCQWlcmm9ya7kZ3cMeZX/ES0M",
-	"gIZ59+7d+5UhA57fwfSkRgRQLcK8IDqlpEskX0hWJcVGHR0a3+H5q5fHBw4HA4rU9g/jVeA+z023mX4W",
-	"sol8v/92m/7Yq/546f84WPij89dv/vCb7W8Wnndb849A74cwztZFgpnINb/k5Srlkv9KbqRArkqdza9n",
-	"o4t8q76n4v2XhNwJtf1cHZR4uy1umXgWFihWskAxmzRgCY9B1PkGOUCML7uB8O2LXOt6EVW+st/vHvqy",
-	"fojOxulA1qJ/reRuzTwiySpCWM90cm14Wtiavu2q/60rEGmtbythxfWx1ItQfMCBfECXoEqhRy0vauRW",
-	"W+rr3nEfwDNoYVKvifSJPv4fxHUlCZYnBQzlZWHImyVsrQ+Kr35bG+yp83zd2Bd7k6gnutqWxz2tPu35",
-	"sheUr2AzAJ6b2IbF1ZRjTouZzIS2vJB2vmZz5PZrNmrOa63W8Z71y/c7KLOSzpWqHf5lWqHwb5LPpobc",
-	"36Lu8a7QG408FAJNwTLDH8KtNJeivg1nHbSBd3fwn0rvAEVItyQCBlY0/jXN5GaGpvh2Z4mQR2DNDXL7",
-	"8EkuftwpFhcsS1TvkpmkbRINsbaD65tlfVNP216t8ToO6zFEGRBcZPZ6aFRl0eKYdpTwfXCXr4kK6+o8",
-	"8a1sJeHZKTQS/X5C9bb0+SZ52OOQiY1c4n2j1+dkD02sM+83jLqpaPN6t3p81S1c6yf+HnbhDv7Eg3ed",
-	"/7uKxrAuAsJHUdwxvfhK2IS7WbgrbsmNc9nd0OIUVBGfO4b5ciwqx165bKWN7t4AMvJnu3duYY/gZFWn",
-	"3WWQwywcVZyOYZ0FioCp1ru96LZrZnF8X7df7Fj4vu7C9Xd7fEFdOwO1C+u6XVvLksMT1EEJngPL9wpv",
-	"1Nc32Kv+ClzT7Q6+fk+EJdy5K+eBHOwOqwwBLpFEs5VbcxZfecFHJ73tEnjp8AAbyBBaCGbFlY3S2Rw6",
-	"RE+rVQmuOJpnVmigVJTSmp8lrCykc3aDxUZcZn4umBZ2pmUjv3BwsV2SYPjbweCq39+G/34O//kC/nMM",
-	"/3kID3cfDQZXnz1akiH5JQgXN4xivoEEcBOAgCXmuOiDSEwC13g1kzmzKkS247aSzKXUq6B01re5LlWD",
-	"m0xNN9HHwedtDWCf2sdpRKaF7bHTsbqUDI1wSmbikBWWZVw6v08E3Ucf5zU9qajFxIOEuoFcm8EY98sN",
-	"GSDwXx+ilUyrcgl5qCXWpeu9LDIY6lgVmUDwaWMQapgWHNzewWyIASaVHwydq9j1hXW82mF/bw/ZAyA5",
-	"he322OMAXo7+uFQM5tfBZnAtnGXLV3E2J/urmultMReGcvkshp4aYQ2jgRtRjobUyjLP/I12fOFAoTB/",
-	"AnQUR+82e84oNqFTlWFnBSYL6vZYoPH4sasGGaZoAlHhUFDCD1wVuAGiE8QKE6Zjv3/XNYwqnaindwxq",
-	"hrBL+/395V/pmWRK09z32BPBL0R1JzQOL+tghxK3aInPhNntvWtY7929TZM1V8ThFjg2yEqvNLvE7Gmw",
-	"32ZGVMTtEK1/0rtMkzu709bxWV5YZjUvSryB1aUU7WnvJ1WF7EyUSp7DRjpgKVmcXH4n1E77BE9Ks7Ra",
-	"rMUMUL2BfECW+YNGQv2aDsvvBdp1abXX0oGk/vASLW6idMOmLjlcKr/rzIy8wwdy4Z5Mbo9C317+7jqF",
-	"bSWqWsjbVOyfcSNKl1diJU4YtPuF//iGuEl1YIhFdRk6yKwJefWEPo4do1ryClrFIN0bZp4siNTl5NsE",
-	"NBHGBOmLIo8j5ick8bTdk39OPGh3M3YgpDpba4JfhK99Qrf1tyNVAGXa+mH1TGaec2vcF3omKh39ZSFz",
-	"dckwSG5CeS64ZLtJv9/3MwIEGsQ+/F6VuTDWfYAYEzDH7dfWhYd62wR7I0aIuzYqvIZGENRw1SKEWY12",
-	"fth4tQ7GUxa5h63yIK6fkXdAs3snZLoJTPbNAguWOO+Zlk1z6iI7veEmFxcFzhzrSPbT3/8D212W8Cuc",
-	"sBtGmhlRiiWB8T73s28hHGGB4ZvKiDVYXpw/HDRMSAyJF7e9dP1fxAfeOaFBY6VCj4NlgWthizLu6BIF",
-	"cZoYhc1XAmujQUJsuJMlW3povptxSlVUqnUdzOodP3Wt1J8+jtqsv4m8yhZenYbe1F88UeSCFhGtDwBM",
-	"tCmatwCK3040ay5us9JvslCCkHYL40MsRwEX0ichiqnppKCIaPzYdJcx/cP4tl784GZoVMv1L2FP3jFe",
-	"/9IWTErpSqSAm9SlSBoVNoGjHjbqTcNKN8XKat4x7ZlUjYcvDd96nNBozdYWEBoYnKtjmqP4o1q4kTcR",
-	"hTxwFa5XtQvre6A21jZ6hNs4PhyzWZEvuofx7dHR9qNvvv/87Xb8c3+Tn7t7b1t1Rq9ao8WOGMaLoe9u",
-	"pvKQondyvvMEwsBm7t8/TKeTb9KGjsvJXUs0XP+/7f//N9/vJneX9OcrrgsuMwF5CstNE2ZiJsXdHfPt",
-	"XkoO0BeuNjaaySz2pw8eE6cPDhgoDVk6VZdCp8lAms5VF+KG+z/+MOFXnauEXQ0nhex+m+2SYI0/sRoz",
-	"4WVZc8CmmN2BrDkeHLomYFdwDV7JrOOIC6goQGW/s9vr9/rduHn2G5bt/vjDVSvYwLr5SbLdNT9cEhbS",
-	"OB4ecB6SmWS7rZv6q4oiNDJLIACxw6KQ8wjmi3AmHGlyDiZL46Hj+3bKjcFkKsW6lk/XuxdU0P16hOWp",
-	"7yHM4kPcd8vxBW7iz/WuIf5r5ZBcHm9U5Sdsz9f86wcYQtH/8YfOCPU/wIW6CInujvvjhtcQVtgGw9ea",
-	"FHrVNcm0UjYCgSY6ccNubZ6X5JpLNOzONXxbQGZqXwm4Zt/8+sEb0mZWKlCfyc0pPD0865ouIKvix66P",
-	"ELt2Lm8t0LzC4F7gGF3WSJy6CkAHE7IZh1GxlkI+4iIcxbzeIc1v4sVwt/q5ilc2ipFzBzOCCq/zL2v6",
-	"pcR77MMB4jqdb8i+0yo4TuDScF/6sPhG/PyZwFQocKuSV12LATGSmy8a5H7dw7ew6LWKFodzjVpi4Vwv",
-	"Xp2FLGwBEfaAA0WIIJmStpCzQp6nrHMMT2P/gLhH8Y3pKqKd6Mqvf3WGKh+HamobJqqyMa4b+ArdZCPF",
-	"w15fU1Nf22skhHoTGyztrQD8LoGRCGqeSw7km5vZZpD2qxGLnrkwxtpnCSOLAesHN+MKUwIkh5siGi5J",
-	"/dZfwbTe+Nb8oO7J69wB3kMxWvW2ffU1BlQec5kXuU8ktsGeAuxcsQTRB8chfKhmNlbKLMMfI43dympc",
-	"ZCubGbFE5zzhVy76kqJEIShHL1F4lFyfC2MZflLZoywvXYgpU1I43yjCUJvJHJVAhWGZn62Y/XOoYVLZ",
-	"SLy4iWZWWdGejJhXDWNT5nUxnZKcQ5c35iI+ZGIytfPYjb7NADabDPmZGbbNz5/+y5tfnzx842cF+Nzt",
-	"KhV6oBBmgflt690NZyFEGl93SL4OHzYPSVVFbbhL90nYhUnY1m41lp+b1pD7J4Ibu03aWeO2k+mBPuHq",
-	"237vXsp++tv/A37Nv91L3etasAUw0XwgUY1ADEgTWgd1i07v0DkqJ6LIOROW8bKXsL/sDeTxWKsJt+pc",
-	"99gX7LPP9llnr9/f67K93Xvdnldt+L5Bg7s7oC748Z/InRvyoS9oPCJ1xhWoMGibM55pZQydFcOsYqU6",
-	"7+CvgTx90A0Ye/C4Noxu4vKVwXipPMRPXkp2+uDQBUHygay2lRp5YoI2Kdx4FBQbtCbuxPLY3wKAzNOw",
-	"G4YK18n0muHgbvZNzzfiKBbFx0eb2wd8Bp2NmU2gb/wMHaoF887fTGittEdvH8ilJ4nxiUJTpTIYHUqg",
-	"SVLVCNBEaQHB8VyyMS9HbUSrxx7idJAYSiAK6GlSnU3DChmmY1g9BjS50qiFCJ5RcYWRJaYK/gfQAtyc",
-	"QzUaTgSXKevAApBSik1UDhsBvUUP2Fdcd+awbf717378px9/ePP//PDm287en/65m7A//TNNC9o6YDil",
-	"pH3DYNsoyUoJn1cZ1j1bCnMKqzCQ1folrLBC47TCK8aZhxxgWsC9EWHj+Yn50z8Tgt5YXXryLYwtJlhL",
-	"IVkqlaRBpd0ee6Q0WxymO0oD6c8SnuSqp7C5C0vb2m/x0wd1LAFJsaSOPtBf7vce/jsPz+fuNz03+K+D",
-	"IqgtyZqceKBiz6gL4fdjeXH6nbZ/1Xi28HuvpdC/azxb+L1QqPbAIR+E3y9gXM9HT3FUMeV9Pg3M+UbI",
-	"QZ4qVDuaOZqQOHLixfVRUZZtEKAkNxtAW1gj2Nbjh7xNtuo0p80G2zRR1gsktaZX3ktudm6CRLxqisDf",
-	"a1SIMq8cdCt3Xzdv73XCGq62AmFLPO1uvw6kEDn5wPmLzyp2JpZdLh0uvRMcUT9fSirrSgKE27nIQcuO",
-	"H1Mv6kAiLI1GfcCobporZKvgYyQGlKWjx5y3FLt7wDjcgS6y6lJVVcLFpqRguTjXAvoMZYXIIckHLMD9",
-	"e+zXTCNopplyaWAI5BGG9xOs1mf9bnCSquSkSDzaS9o25eJGC9H+NxNHNwvifj+x2CtLXh+Z7WpePIbo",
-	"u5DNdGHnpzASGvGZ4Froo5kdL+7jFB4rXfwROaMD9gV+S4Jxhj5u3quOoTOaOai5yiUsdaoiBHgD41Na",
-	"83OFL9A9Mj1kRgi6pSijTqHABy+92vaj3SanNAd4g0uBkhZ2qRImxtZOt96+RXP1SC0OCdsHlyyhCUvZ",
-	"1DK9zyQyRiU/U9oZbyKtU2CNEmAzzUDy2uuF3FYJmX4ooYtjOGMOkPEsE1PLZSaAsy6LbE5JZYyAWfLS",
-	"ZULMNlaVsGmprEkcGnCM0mvw5M3ka6ku4db4/ZHP/gpVcllzvBzIgfzkE2LMaJE8eC63xOX2PvmEHYX+",
-	"MZAwXSr/eCxoChwV5zMtcpbBsuuCe4BNrgMOkmFwLCVRj+nsrCzMWOTsfFbkHF3Esa5q3mlyYGzWqWMI",
-	"OfQcuFTnNwxPHEN4+vwFUrGBnGqRiVxgnV6bKoXI/VwgW/+dSwqce7dNl7zHqVsJy34gaUFdlh83y5WM",
-	"o8VUcO/fDIyZV5WlOLu/+hU7VvJCSHw2kNuEBETXlAtB14IZyV+LYYatviz80wDk0klJTj1gQcOVAoFn",
-	"jJeXuGC6sDbAtBCbKa54Zss5M8VVyNDBS5YX57hrGeuke/29T7f7d7f7ey/7nx/0+wf9fo90Un+ddg/Y",
-	"C2XsuRanv3/iT8mkyLQi4BiTMKOgGrrX8IPcgciYCjVmBHK48+/ODUrsoWccL4GitEL3oKYjKm6EtOgk",
-	"Tn7d6UsHwfrXKVRYouwJU8U6YYKMA56/1/u0e4jzwkrBpwHjJt27e3Dv/sGn/bQbxSC4PuMuCr7hB+hu",
-	"L/kEExQwd/xguRAb50zl84Tt9/ss/W4m9PwAFjGld/igcljpwXJXCjakKX6axnhndoDUeB/PhByGAa5f",
-	"CwY2M0b03vTYiSJPfzi/06mQ+TaKmR5MEpxeaJsD5aCs7UgHWEi0TbWSFoOMYe4KNSwt8nQHcP9T8qGH",
-	"Ijm3/IxsDmpqMO0VY3vf3rvLttkurLxb9qwshLQJ+0t+wU+RwrJCEupb4pbcjsXELzlOCSSSgllDIlnk",
-	"gh+AJwwl4+Bu0QvDUuQO0pDYwcFmVfj30CX4rrL6+I+NAooArGGsKnaVVrm7fNXSbWPIIsKDj36glZj0",
-	"Cn87TS8QIo6zSqW6bIyrUnWJ2xSH+gznm07zqJAwsscPHz7c/uzePiONk+kRRXC7MuNaz9kz/gxhkiWW",
-	"mbsdTU5cuES5EqTPE1eFwV6TewG+rPkTeHKdAEvJ6hozStXgHYu1UraLvQcVWOo1IBzPYyFFiSNyHBUj",
-	"fsKfGuYuHDophnXSNnbrgCG7lXbxtHsdcqgKJsnlieDA3pclbjTUJJAuA+YvI/Qi9K7A1vwux+tSQ29z",
-	"4zdyYViuMrrWw5wRL3AmDt3uNcyM1YwqoqiZ4lwqLfxg7FjMWa6wLIwycalESm6FZg6O3zCe564ELT0S",
-	"dzWKOAuTeJ7AJO7OMonXTuGN71N/aIE7qaIdB2yXWcU+3WdHp8ePH7NSWCu0SRw5JwLZA1ZqCP85gP9s",
-	"pwkNiWsUk5zygYrC/sKyrEMcLUsrUgU6hVeyQChtqNkFB0JtUXwg1wGT3991YAEzA3nEysJYtxu5ZOda",
-	"XYadRnExnfQvHsY5BKDD/om7sdMuZsrDdUXqO+XnMHOgNCoko+xg8wOYbE278sAJNinrwLfMFH8Uh8RQ",
-	"YofQgFqTB10aIBQ3unjMYCKzmTZKOwzHKRAENTPYPLCjUlzZofukFrNHV4U2SCzh624SqeQwkgQvO+Mj",
-	"YvBj/PKQRkEnwgWlWDExSb25arGeiSt7TA+71OkxN8OJ0hCcwqrvvuTmKTzs9tjvhJj6mQr7wY31t7VW",
-	"LsdFiTuwqpRhqMJMQL4anEvaTZJh9EIaLWSXjiAWj2o9QJU86Edx/l0OnnNx6ElpJ62tvWNtcAe7I41K",
-	"MgMTrdhUlSXxkdAGnrgj/7owTE35d+DxWnk0py/4ufAzdoi7x47d9ioywfICaSZRcDMTmM4H/yKJm0LA",
-	"3AJiGp/9fh/3PW562tbBzaTQPv9jhzvkZ5TaG5mRYDd7j5RmNiTk1ytmPYmEBtMFuo7570uRhJOF5wO7",
-	"9Ps6JwKVVSJVTAmzEk5xdJJpXYG/8SwQxeU5bmchlCpoyolmBkoAQqOQ1o2GqBvKbgNJ8gasdsq0mlnh",
-	"tCAbCJpHLrgKA5EFKh4G0oOmUjsH0JE39IO9wSV8w841l9awNwP5Znt7O/wfPoxlVvamFrv4JgpXhIEQ",
-	"4XfEmtgcegm3a0Ifx2sZadN9iqsuc43GojF7w548fnpKnJl22+AN1e95RCf4RQJf4npSbSkbcpbgyUoi",
-	"/y/gyJXOhGu+LoizNyAuGstHo9Zmm1sSNG4EiseCS/khc6i/sTHOsW71/U09IMmfvakH0sKwkcFELg6a",
-	"n3kpj3pBrDLUMZAPawoDpE5ELWgj0DUE1ZNMSzYEcWWFhIt7IFv0CwcL4bqffAIMh5Lik0+ceWOCRqB8",
-	"QhZVPxK8sqALIg+xwGQQ0nRMrEvoYwJzA197yboUVmCq2IF8PhXy6MVj5tU1HsrMhylyd4SqkQPvVmly",
-	"DtgfvoEMOr6eu70++cIZdyhoolCQgNPxHArt4exCkccPQHKVIrPOzG2AbTvyUQIJm/ASpFLYX577w11w",
-	"oSA/WQi53e/vHhLzWuRR5K6aWdCcuJmiDuHXd3ss3RkLXtrxH4Ep2IF9OKc/J8LqIjNOHtxRUyH5tOjN",
-	"+aRMBxIFfKl8yG3qJw4nousJ00M0fHkqhGYwXEiJ4vb9/XufsalWZ6WYABc7Jf1uoeSOe/qbvzGYJoQu",
-	"2IFMX9Bzb4cpJA21AO12wlJswaRO2Cfl1mgkMLSZ+EXkYDiJASBe0lO4SKBHn97v79I7jFCBLeTBrEkW",
-	"Ba91vGxDDmWzs7dTz2rCOulga7CVevBWvDiwfPeQWj8+/Yploiyh2XSnLKQwO47Y4z/C/cogQaInxMCd",
-	"pFjh7jZIizmbjucGAY+hBuSfoGtjwXOB04yPd7ve19419NmOZ31S153q3ob+UNM+vnfxEvLV0R1FLGDC",
-	"0im344MiJzY4pU4cPM7FZKqskNl8+3dijkweOU44iWlSGMoQSXr2eOqxItJqFcY7M2jisI3jp3bcVnvq",
-	"jwczc2n5VcIuNVpS51MXb+NYtCj+g2sBV+8hbR4f0Q4GvLLcdrWdAQutBX9tGKcofp+B2zEyHS69mBFb",
-	"S/2lP5Bw5hKKUadjS18AK6IF8gBFNUfstZijVLi/twf37r1+n3SEQDcGchDSVNFRGmwFfLXUsZrDIk8P",
-	"nZF0ZgQ7h45YFctspYIt/EyRzF54Ab+S/LGiSEmDMxz0liRGel4g/attJ6RuP4YgBM7i6VPSKZi8OzCK",
-	"gEi1X2OIkNfaoVtjqc4H6PEHMo/zx0Shbre32+uzDi5EIc8JQgWrYrmYCuQElXQUei5sFw/5goRDnD7K",
-	"KhGniuJlSoGKl0EaQaBtJSuVGxTLkYL2WFOaYlyaS1TuBA4eeeRbYAxRvECZGIPNHN/XxeppSbwScGOt",
-	"JFiKkF5wIOSSeHDKzyoLKaiNoO85m1dzRLoir1ALnFCN44hk7sVs9V5tGJe4Q5oc1vEbkPSYtN+6UduV",
-	"SsnpSCjrqeNVULrxqSDokEfCgleqsQ5KpznZ/RkTEhm14LfuNXJuEsCw0SuLTADRhK4cTXk2Ftt7vX7I",
-	"UacFtkqK9CePjx8+O31IlhNXECwjhAaxVRXfSrZmunRWFHOws3N5ednj+Lqn9PmOK2t2XI1YBhG4bSnq",
-	"xhWKIDMuq3dvlz501/bWwdbdXr93l2LBxmiH8hc//H0u2oK23LbegzhvkFLpAGmVCWPwHi8LwON4hhKF",
-	"ZwZ6lG+DdvnjfOtg6y+E/dI11XB73Ov3o/QC8GfMBPyNs9cR7b7ORkhNkCWqMQ7sJszGvX5/WTWhX5Sn",
-	"T/ISmZeaEW/r4A/foBPZhOs5eHiB4l1g4I/FpI5/qEZutr6Bop6NWjrJLzTqT8XMEFSUuPK7l5Edojm/",
-	"h/SJYIUlflJJUDdKYS+Vfo1LRJ1QGrUIxoFhLKzJU9eza9cE+rUzLXnRWI2moXRh4l0L72Pqo2mbhHEs",
-	"XYSYeV26EuAP6vn3oMiMLk5Qb5/NChD00E6/xrZ31W227X0nN5jouOsgevjuJ+zfHT198j7m/2Ws7l01",
-	"9SRRrEljhKyR33Cxetuj4+KKkFskYff6dweycnJtrgpLJyonop1CV9CWk0bkLLRVoHUZLys02ITE2AfO",
-	"tsK12wq59w/yYFLUSexJJz0RVs+3MSdv2mUzaYuy8qiHmg2Q0IlCOwHxtxFHOZBS2SITxjmMiXLUg57j",
-	"9jBpJHCTJsS9SFgBBqt54hziSCtW8vMlZ/+EVuU9kuMT9FURxrTtV2yeWUXzeeP9CaXuXl/qlKb2leQX",
-	"vCB/41Vbu+r5im19sbuDypmlG/uTT9BB4+CTTxY0P0p7BQYywEdQD9Pq0iRMkgcR6qoTxi2bKGMrRTu4",
-	"6IDfLtnQU0boFCC0oNrF29bzIj/ACl3SG8+juNfIWTkjJ21kUvjJ6Bt1KQ1uvJA8wykC3JMi960jl09P",
-	"B7JDsqHLQ+yPbZF3Y1M78Kf1vCgKlL1S6Lbdeiq4zsY4STGwi0EwLbiStlAS9Wh1B1s0gq1kzY3qfIve",
-	"Ju211dOHVFVGTkSf7rc4Da2srciX1bXX769dGe6KZkWtvlwtGYABX+y9HX5crSdq6V2lEebkbbK1v86p",
-	"/4Ln3rcMi+xeX+SV5E6/LXIqtAadeKT0WZHnAj3N9vfuX1/ipVJPuZy73pmfiY4FykVHpQn5BjdJdPLP",
-	"5u60RuSNsEnBg21BPRswLBazhHpCSK/XooR177TrKCMlDm0QRaVz71VRkwbR1OxUfU4tItnZfCDB5SJ6",
-	"2WOPnGEwU5OzQjpP/qNnDw5ZCpwdMguFdHFmRPWsSl2KPXiWEKCkkvUe9BiYvYzD8anUzVlwSsLE+6DI",
-	"IdvtlleQRxNGGqaIueoeYFgPazGPDmRs9EuBzAdzaqst9JBAakRlERzIutmRUGtwzLWqwZ7Yq6x+6D+C",
-	"TSDrNZCugcpUt0DHYci0oOuR8Rqy13pkJw6wW0Y0K4yw26szpHS+vSoDKsx6VdYgfpbVWQHMrFdpwNiB",
-	"Cutn+iHXZSGMrR+ApDo2iKXT0gc4YLUOrBNPutg+ZFNebF1cXdO6VbfQ9gvv7bCslcV7OaCC3etHDtd7",
-	"197RSfsCVadnpzK0b73XGx03GBzhtisdnMxQrxrwcT9e7rd+uR8TpkhhQMcY3d3u9l12d6+X8Lt+le98",
-	"X+Rv38N9jmG8ZG0YFRaglVGpEryclcxE5MUj5Hnh3BdzClejJ0On50wT705KXhFa+JqWSL04hYu3zzVH",
-	"DEs9fvABztcydplwj3/hR6q/f32JZ8o+QkySP9MzeERLQVu0sIZiBVzIAXqreFzR9306b0374A17LncY",
-	"eeZSiFDlyeIFeT2Ticd/RXbcuU/E0kZhYrfpVSdxiUz/SziO1wmwOE3m45H8BRzJaOuho07miLw/ge4w",
-	"vZNsS0cueKTjdpsq804Hj8CQDOMg31KvE4pRDsHLkUeBh84KQeRKF+eIoeIdEu3YX5VVCvOykOQfxAo0",
-	"wqe+mqEagfeHxVSOrqJwj3ooJDj1xoL/QSE94wH5Aaj2RjdC/nkoEX6ByIj4yz7+xoVidoQjO1jXQCK8",
-	"AcIQKSmCvtsK0HmStwtiwiC776xjqAfoOgIUpse5h6RTEvZdToX00EfOkPeeB21EX1EnEQ7kubCG+eCO",
-	"EHJV2CS4WfjRVj6lqNCEJUD4bG4G0symQhuBg0ddl+8amGlNs5qa66Kb4wMwRDjwwtp7cpjH1pRzlq/6",
-	"4SQhxkfot2QHkmwPHNUHGLorRcAYZs89nHfI0o6Uno7QmBcSncnPXP/BZXi/fz8ZSPSCSR0emRm60s4P",
-	"5wShVjv7e3sJeV+dUaYJz8JVHlrhBoX6DkPM2kBS9x8ff8me7vYBrmJvr5v43NtVqBqEnzkUNbiHnMsH",
-	"utgM3a5KD6gPtOMweIMuaXwathjse5gZh7Dh8/+jb1Tq9rEZhiiXoRSX4LJoWSm48dpvLOOCRNw54CU8",
-	"nlM9gDXi3wy9K0Z6EDT8exCwq0aVoYjr6hyjh4KvFk5BCQeoPgjfhUzNpDXMxQf7qrquF4XL4WWG4H8T",
-	"D6MWJBl9mNL0UQybWyXwJ0n8EnVxXzPue0AtgX5siAHIQyFzM5RC5C4beHrgBgPdrZEBmAAoyJwnG0Sf",
-	"OUcQ6N64OB/Db1pPyTXaMOANNgRjwdLQ4CH6c0Elzt2Z+uJ6kGCgDaYXc0Bv3s/zcjynQIRzIYXmGIWR",
-	"ulKVxw5OcreNtSGi/tBfFO/I3OAN+4XK57fG14SeBW6kHt/sspY0+KrdDyPmxPCQ5ECI7T9R2RIYsRfc",
-	"jgMtd4UTljbubYQTrg8xWWVc/++Mp+uvwdMdKzkqHZz2/u4afXrB56Xi+UulnnB9LqjcvXUmANLmKW1F",
-	"/lTkBX85p4Qq+3t76xR2vkfABj6UFmy3f6Zc68Om375zd0N5knum0O/piJv9LrsNThYiDHpTeb6W/HgD",
-	"HQ8GnJbKokUCGzMX56kb2Ytnf8GKCT8Xq2TDF6WyL579xfuUDrEPO24WWpTCZ4XkpGlbx/0GR/lRHvzZ",
-	"TxZsnEgQTBjtoveuj/G7/D0cqdMqoimwgQEKZsL1a0Cg8dAVIc9E4gHjRkUuEO/ijMucZBkUcjCFB5ty",
-	"KUrM9XVJ8goei+DgzckrEf1NB5LC1Hz9AXMjwvOA2p2d6brjffrVBzje5uL8N1c38qf7eKB/oQf69KsP",
-	"c6CrqL/11D21Q908w48XwGNgTORuD846VTh6hFrjBoyiHvn18Uo6pGgqOs3VKacELBe8ZNyytHqeVtIb",
-	"Slde1uv22EIoSI+9qMZOSAFNHBou5x6sBQNnxg5exCaIZ+Oi76BCMEnDZDiicFhDwR9IFyUOghuRphQw",
-	"tUwKcS8+JIWwGEqMPZ1ZU+SiBgMo8oEkCVBpImSMkyK+x2KFPSEvIAZghe7j2sGwm4Hc799fLtVFk/KL",
-	"k+uqvm0k2PXfSweoiWWGYqdem4ao3oScbR3Uhc6F7m19lME+ymDv3aAeR22iM6xH8oo946JDv+Yds+JO",
-	"0SKCg7kNI8IJSIwmstQRVmDQbTtre+AWUbdVmeDBhayyalBQ3nLTg8NGdUwmAWE75RzohaVEjR6a6ImW",
-	"w7pwLTwcI4XaBn0NbMEDAEQi6IISQkcdsEeVocI4fwCn2YO6KxSYzuPT5zuPHx6z3c/6e/cG8sf/+llv",
-	"d7e3R1YBlutiZInOu0BB4/3fnKbdo5C5CaNwsMI47jevZrOaMtZxYdSEP4bfQTjyKXyB6sExYeMu3CIn",
-	"YfHFL9gR4aS2RZc5JODCFgZ0dR855J+bkEUby3PJtHOJAyMKwC8DFbhlx99A2pTOe9N8dAtOCS9D2DxV",
-	"G/H/Tof04BFJvKhlcoe6Qvg58AyuU6t51XAlqCYhSC6JlHAYe4tEwAvaCQE8Yz0VCG4gkRVw9h1mMqWB",
-	"XonvZgSgOJAOtw0pEJYxltvC2CJLiEPFeinBjntCmkAI5UPDKDK2yRKEkyRIDVh5MAXKkMbGM9g+Ygni",
-	"QbidacE6kk9E4sKHKWbYG1pKfnbHsD8qKRKYRw503SkYahg5Ro3sJUYuy7xJm+lzR5EG8vTLo20AaXXy",
-	"CigtQt42kj6C0RntfzXDNGLCrdImnOAmefHg0YciqW6Xv7PS0B2ajzT0Z6ehqPHRhbTwroYx+16CJTzN",
-	"xG9ugQ98qjCxbEz8my4QzCqWOgghp5/wiWlTonk0UuMiEjJHM8n6GQipuBQ6pOeJ4G3ZEVaNRMv3w+Vc",
-	"JckfQzApYyPZZHllWQWPgSCjKwAfYEc1/QLlkS6VPBd6cWQYdHD/gHk8SXgwwuR/wCHbmZYxi8wRHViq",
-	"SyKkpp1Xg3pug027fVmf+vYzyflLDbjUK5F/lN0/yu4fwOuvCYX2Xh3/AtdkbsDbJtdohh82GbNLh6gv",
-	"mZLCMKtUt3KXmnBZjISxDrYPryxB6NbJQGJkLXB0dVYOHyE/xxw7d0hcZpTS3KfqDCwbOZv5FDqOgSNq",
-	"fMl9ZPHKQK/Tatp+kaJu6N+yuBa0ZYdBfGTTfgERrmE12p19N+TNlmjuknfmx44kw+B4rWSRVXvoIA7D",
-	"B9h2wzCfBJ5Gn1GCjCwIA94Q2nos9e15Xo0HpuyOqT489JweB6w+TOhEv4WpSGbME3W4YS+en75kjid1",
-	"GjSoUGgWvE2DOAgOsKoUrONbh2q/49uuFe3w3OhtsvhGDqTvICHqTmbGehjtaI6IgySQQVgTkQddnYtC",
-	"JSfmoMR0zqeEK7DtagljOnK4cH6qE7AUqew1Zs8byLzAqzFnPEMXPweSeOgSD4ACkBcl7j4oRTwwfdqK",
-	"XFCcy18mCxmO0c/kBhjav5bqfmQnP7KTH+ZaeffbZAUHuZBG+JZdhIiJjFupQrpaPAoQO8Gmy7i3rxoZ",
-	"iX+BvNtCKuglhKQ28R85uJ//qH3VjtXdys2tcHZd069nHU6unj9r+TljjyOYcqi2DiIfDcbJTGfcZmOC",
-	"YAXGJG6oexjQvwcS0u94O4cUVQqVszkbc0T8r3fKxdr4hC+hYUr4E2yWjrMDjg2z2oVFgnQjCridErMn",
-	"deu22sL6ZAU1VOODgIc2kLv9/o8/jGAX7kiXyRuq+PUDhm86+Ir99Pf/wNzrrv8OY76B+wKbxVgAavyv",
-	"H7xhP/2H/60RgVLl6erFkzy0qhQaHg+nGUA+IIM4kN636cd/3OuzX/soJ/bqlD18ccROv97+fP9T9hRr",
-	"Z5/3+/0HsYq3vo6Hi8FG1C1MQKqLHOco8TGxA1nLmoWPfXCSj5E9qoBzcWqlYloFu5VXdAJvSRkFjlqj",
-	"v+pxX15er+PRhzCwgeQWNi+ZU4DYs2Y4WK1ypZ3PeaRBRlTJS2C2DxtRZM66ZFyq2oXYM7pzeuxIRv4F",
-	"bZFwNfLsXQOoC4WlAsIMJEHgEk8O8gMFatGIQT9C0kpcWTKQ8BH32Gq4Lj7aCDvvLE7o3wZjsppLQ4FZ",
-	"3rUihuK973I0OPmjdCA5HvaalM+kTqcBABYg/jGUyg79O8jh4NXjVaQgHPU45VGYqqqSONauqqLh1+a+",
-	"BUSfUQFBeYAkfYBpnOPFjrwe/DaKIiuhzdqZw1UdRgcG8eE5Bf0tcZaLyfwvTvyJO/czSUBxF2jG8nVY",
-	"mBCJr2YWKMxH8eijePRBHExQL9XuhlDlWVmTdQts0PUO2VFmmJ3vqx9vvXDlSOJ7imOKDJB40imUHvNF",
-	"1SMefAoAbumq9b7WAynVZfcg5HV3VcbR2pa8lpEgY1lqTofA7IHsSGXXuSyIkYOP/W1DXhiEn4c5462D",
-	"50AjMCK+40PkyPIo6SmN6pLTRQsTRO4ayPA4dsiIONCeBjYs5BCh1DFvkETNoJll4+aNZ7xuU5W50ExJ",
-	"0WNfN1LOU/0QOU23Gj8Xw7GaaZeSJOKcCuPqwaz4NIG0EsDpSvzAJ+Ppsf3+vs+8ihHwWqDPH2HgQ9Z9",
-	"pXOzyt3ksXwENW18rVXyw9b16HTLA1Y3gZZbvE0mityffDrPQ7SE4+JSdrVlqGbcbo6d9t4Rk/xSrAJO",
-	"qpb+o/j/i/Czqa8KHFXutuWtyv7XXSG3G+BzZFhKFpTlcURpQoJRrIyr5mEEJoiWyyV1RCFduF7g6GIe",
-	"74EMOUnWvDHTrkuJhbMPmdBCTif06Mle++7lpjVE6Jlq9h+NJfsDGZwjybtnuYxQ0cN3Ca2Jqep7khfa",
-	"Ovoxzuaj9PBReliH5P9+xoEnma+gfbcacOMSD60lEzQY/pJgZWOwLWJTfdauszm62iwznDx1Tb9HAkBN",
-	"rDJ5uPF/hGC9fa+zsoxSSdf3ShxV4b5Zun83sU7ELAYqaGH/scyBx4WduttjLxSlGkbZsKC/8WOXPXg+",
-	"kFVcVRUg0tzzvmqSHK+iN529/i4gSQkEf9bV0BHzLYlUrHS6Y3/iRhDZQLooMuhb1XWfsMwunsXKNY3o",
-	"yED6jrqQK2xeO29fUIbuYa6Ml2MtDKnNSzGyDD2MRwMZWRhSBjkII8jZOyFltYlTtAQlvhmrSxxCWWIg",
-	"GCi6SQHgUO60YDNZQFJkGF8hgcEloRbcU1aoTZ96JPH3wcZQ5T8T4+JG1kKzHvsAQK9caaz8YVhhBAsm",
-	"ZSlSt9tUyC7vHx07t35KvxtMlb9I0uim2vkets1/bzhVH1mxX2DIMx6eQI2SyuwXszxKihtcZnXuy+3p",
-	"W2DCnJaSjHQEJBkjmabLs9sRJW1LNQFWu0qzhf+8H43bETNTkYHOPCJnEY1bQ+8WgYC1JPrZ293/bP/z",
-	"u5/uf/YzpvtZTjsrfvSj8u3nP/7PpV+Nm59v5xO34bkm/zTnK5uw4GjrIxxYh+pF1olQiHNRCku5bltl",
-	"rRfUkfepaxHarPYuo05/lLRufafCpLvZXd8f88ZilXc2RznJc+7omJ8wzkazsqwF2rAOpturIkNQIOgC",
-	"OLIqXb5xXrnzd1wIPoc37EifK7lX5GzMzRgTuK4QB174VHbvBTMIK/+Z/B/cyJacK+9Uv/WRx/3I4256",
-	"yU2FhIPm9tDm5KN20e18j3Tg7Y67stazFDU4WkdfMi6jKGYgH6xAzzv4M4DMF5riXUycEL5HFbkxVZoW",
-	"Z5axPtEnKGLayMkD6n2gJ9czxTjsG3PFPqnmN+/9ev5zJyH/A7CdbvOF/LS3dSRnEqKwNj6Rx6Xg2rjI",
-	"L3SeRK/VWoyXqMLxWl1BXmHTH4/Tx+P04Y8T7b13P03Oira571x78BEqZp0GqUqiUpkEyNs6ZNkgH2xj",
-	"uRUJ5k2hlEp4I0rBrLK8JCs166RGfAcOC/XMU81kqwPZlm2VbZZs9ZD8F4AshFSqUGgkRO6Ty4QIizNx",
-	"XiDqXY99IdAEgd8lzbyshWG8vASXMyMs66AbLxOTqZ1T2sQC3fKcWdQozQx0JRlIdP+o8rM6rzUK2odH",
-	"Lg8VuxRa+IQjLFOTCRpXegP5CGcHulbvkREBlQ+rCJYXJTNx4KvlWgyknE3OhCbAO4JlIk87ZFQqn3nj",
-	"2kW3Ek7jQkF+IF28B5dUb0B0CR1FbZimvcSzsfusMJhg3wrpm46ao0oyPiO/xQMMyMElQChCprzXg6HA",
-	"mx5uT4zwcc97PAe3/ZReOMd8ciIKXvc9H3GTLHd+dV/Gb9MuhhO3OmmGAuFV3AmMbrBxRqMq1RB0HY7L",
-	"0EFlhY9j31AlhVmqMjnBih7i4m7sZxNnGr3VnKi7/Tgp6s+cuZym6JFod8ePE53+eaSA+3M0UtBNgRRX",
-	"jRoBTjV8F3pyMy8RPVvb7a8K21tE5lfamcqB6HQiZL4qCZujN+SdjXCtSnoHmKlAOkHG4wbwKli8XW6u",
-	"GMGwGax0wDjb6+8SNIOpiYURicUgtJkHVCCaThLmBS+LnJ3NrI+lo55lXDo4BmepV5oi1OD+EpSEKcFU",
-	"VGFpEfmwTFCfOwIqih+ZLrkNApoMacISr2lznHYMFlZH5T4A3MqBzLnlVXo6O9bqUoJ3+hxiMqn/hZzO",
-	"LOvsX111qZUYitUnJjsTc+WAcei8kzn+IJp0AqJA/wmX0NNYmtNqnarscYfevg9T4l4nIcldyc9Eickw",
-	"uTZ4sw5kZyFll2HnihXSqjhCkzaLvVRUFTAoMB5mxrBkfCBrwZmH/pAUec35YCq07xXOwq9+9Sv2OBeT",
-	"qbJCZvOBPBXAYESPtn8n5ogUNwGPCC2sLgSsxkj02O/EnGrHI+ZDIQaS0DnwPjZ0vYsJdh/ghAnuw2cZ",
-	"29tn6MHvM+MhwbmDrhSgE0ElK3JLHm/ogMqzvzx9/sxlHw2Tz7hhU64ryE6ZqRDvzjpGgeuGFcxMeUbR",
-	"ehMB295xMG5GJ9xaobuH1NBAHp9+VWsI7zFW3YMBWgkQVc9UPmdncytASNxmp3wi2GsxT3zS/TCoxIGT",
-	"uiFjtC2aN2jvffKJB7scSBYO1CefwFyQS0s1rr3+biO5P/YCWUXvg5AC88jos9rynohpyefYrJ6JFFwr",
-	"HFYKzmjl31sfjvcbsvGYDiC4sPYhTHgpIixWP9xAAArJRiWgqNK4XdMYZwIdpthOf6hstUcQwgpldZp9",
-	"ianvMDWlRQMx5m7c79/HPHU07hNh9Xz7aGSFTrusAMGjSuE2KmRhxtAfqBlHcVQ1BnvZEScgKdDAPaAs",
-	"oTg4FKEg81rMw9GCrdNJrbiyO5m5SLsDCddq5M5tmLiaKm3hyx77Gnt5TFzLNqhrD1goXGF4DyQ5mRB8",
-	"tnGBxV4EWdieKdExYHSrhgFau5Yrn3X8hUmUJvVouCnrKLwEedk9dEkn0iY7lbq436hZJJtnwtmyIVlk",
-	"vxv0n7hBC8NevXy0/TnrAH1E0odHZ5uOI0LCFoYV5xI2YJciVPZ3P+8PZMcNHQLlz2DMKqRITQdb6SF7",
-	"8giW6PjkySNWFlJgCsBujz0pJMaZK+M25EBmY655hlHKhqW/Sn16C1oetNxowczrYjoV+SE7K7l8jXWa",
-	"+IVTx9ImVyiOYbtOiqMF67FjVc4m0gS3UcphKudEgQ5get6wDD9ib5hfEfamki4gcvlNYIHgx0C+2d7e",
-	"rv0faklfFzJP2Rs2F4a9YamvIcUfWD5l9GUIJ/AfuwesCK4MSx5icbyQqsL4s16UJFv6ug4iEEp52IDa",
-	"64T99B/+d9Zv1OCpYVUYI7rC3vb36IoXAxkmYVjglEhVtVJdno2ReoCEhQL+BRvxDBGkB7N+/65gfdah",
-	"T4gV2+1CRUBankdJQqdCw0pCIl3HCXhNv9M/YlrLGoXHLJRh2fC8ulWIOU5yVMSD6Cmk4LZeSX05ut61",
-	"Bt43W4jmq0N/G7pUqmYaLUQz1u2xE3XpbtqCMgvAfR24H6gJ3yLpJUx5PAdxu4WpDoVHi8ZTgCwCfYjl",
-	"nzl+dmYES3sptJSLrJjwkrIPg3GFebqGRFgilUp3e/fE9t20S4gYDOjazHCZG58fVGlzyNJn/BkQ1Mdy",
-	"lFbQisVrEZtoKLudFlSNmxGE70ZAkEIiE+NumkyUJV0z4UoBIjunVM0GBnnHMDjTgbLizqLi0meqgPXL",
-	"Z25Kcz+FRGo4mxSE2BDmkN4nwOYwnEfHh1fXOwkGwPs4kusiKj1Ncx5jQOwoQyuasvCj/f79T4kXonXD",
-	"SXFwbLgIQrN0B0qaHTwvmcR/hPtFnaNHKW2P9u/TbtgzOMceNt0Ql0jz2AFIEUysFNhsOHiBsBLZAi0N",
-	"C+ExUORev0/vTMJCFV6C8/DlcNHjnUZ+xS6JL1S11+8nUAIlFjzIlK+X2CSSOVBgcVok4aTHUCM4BLgE",
-	"kEpuEzUhl8/DkBaXz5ETOlMU+ooiE3nFEU+F8vUdg5XmAphiHTlnQxUuLTMqYzFuy8EvMx6mvNfrpX7d",
-	"SDN3hbNwMJBpmg7krxwvQw1HVHc6VlYhV7C9yzrual28QrsDCds78VITCZT1+8CT/iTQhMRTmIH0S5nI",
-	"Ar4XyZPdpN+7l/R7/d3+XpKs/KJ///P2L/aS3V4fvtjr32v/4m6yR1/s7+7iF7R7/PsEC9/rJ19v9/v7",
-	"e0s+2L17lz64m+y5CV3iAnIy2xw/I+L4fyfmLeo62Bm40wIbiFeGw1FxkjAGuixR5wUvsttwklzdm2hr",
-	"VTf0sn5VH7/3voVwdVSr8Cqmv4qtXtbLiBPfPKZ6RRcD5w69U3D5NMAKlnXIc/9rT9pzX+Dte0M5n0Wu",
-	"ScmWF4zqFSxOBN788PBM5EQiYcyTQj4R8tyOY4VynJrhwzk+ncyuw3txiYgIjcHBReiQgqgD/Kaj1dpJ",
-	"8wO5oMNJyCbkCrmrIWTUcAvmDAVREEObrmBxolNUHhBLhuazwsRZkvzcoSVQsipcCBttKC9AgF4n7uFM",
-	"qVJwiZthvVALh13lYi30TP53mQ78owvaLzBlqTKW8XCQR4WNDnNswZitCnKNYXJajBe4mdcz3i83YHh6",
-	"482/3CsAD7DHnul3ONRBK+FEWVS7BvsMPatZibXIRIFIM3WCtiRm4ya8zslMvveUaDO5glZ/dIn5BQTm",
-	"ensAbd5bPWK37SdDn0R2jADiaJL66XHeD6ApcuCOGsxzPhevkplI/CUsghbLBCvbYrw9hU9B8KxHFczT",
-	"Q+fL4W2CZGQjHwMIbG3zYaDOe1MhAdmjROk64WPKcKRxNypDZoBwAk26w2hChEtRoqt85dMQ9OsnsdPQ",
-	"QD4QGmhLE/DUU5rfHyexJWJW1pC8zECChghIVsIaiCWY2tF5KA3pUXowkLu9qJXLWheXQnIdsNQPKj0c",
-	"yL24ikzNypzVjKyNz+82WwwIk4UHtW+U2I9LOAuGSxuSI5ppjO8FNTrNE+KBNeq614sj1dq9XwJWbQ3H",
-	"zCkq3G4gONfI9kD9iltLmuCkWLzWZCckyF4EG9WCjDKiJAxc1GuikmsB0tRzhct2duGmBL7DCqjwWGgB",
-	"V+IS6NKQT7SBYIo1YN3gh1TbIZnSWmQWFZlex4BN1yW2O2gXo1SmXedb5c3msJJ+ygvrLGx1lFg3aViH",
-	"z6zHXU7Uw4H8NN4uNbi3A5bCpsBJ4SVsh8/ibyMUOdYJ0giclIQsbQFIjjrbPcAuuFMFFLzmOhh8A/Fo",
-	"syJyFgPkYo9t5KhrGijCczS9kNhsBpIsakcY2H/A4gt/NC70b7zpqkLLRVsaatseffn4hJ3sA3ktS0Eu",
-	"ZukXM5mD3QT68PzMCH1BenPDOpSTPKTleXX86inLVC5IZWRnkZdgzdfxgFVTwH76n/+B8pQlLJpseDyQ",
-	"Uy1AsSm5nicVYYQSGZegPnYWMEJ/xe4csjQXcFGmdAKrXYRvkFo+0mqSVgvZ7bH6pNUMkPOB9DPkjXGo",
-	"VHQL7uySWl16DrFSa/OBNFO4Bc1YCMsukdbBb5puWLJZydF+oauUmr9N2G8Stp2wf5swy88wH/DxSYA1",
-	"5O6S6rKpFqPiyk0BRntMlbFaTcfCwS2HTPfujuJw/SmaKLIz1wAhcEpovSlJMumS/SUFo4YgL1bYhSm7",
-	"2o532rj8bPti7zdCf0ZT6PfYQH755DN2sde719tl6fOTV9+e9HdTNhHGoB9rIdnDk88YOjHgpaSkiMCb",
-	"WOfp6ZfJQD7/4oRePf/ir/A1DfWABpbQRpxJsIrTG5eCP2Gq2sADaYsJJoOiKHDgjKbo/kp1Rzk44YAl",
-	"7m4X5/ANE5JuPMzzx7UuwCGOvBTQn+Dpkycv2EgTWjKmfPny5csXgBgmg++MHWtRZf/nks1kJrTlhbRz",
-	"djbLz4Vlc+G8BOJsjKiPvuClg3TExXF2lSUSxUlwHPsAgkWgM6v0VEee2vgNB5MynwpW0Z5epfhTZ3Dn",
-	"I8P7jto0mofl2rQFTePWsq29uly7pETNf5SWfgHZTuqQ8eSvP5O36lrpEudhS7fgZ0n1ROxmoFBe++6y",
-	"Q3V4I+2C5xJNZcsB1xD0My8M+47AyQrHwspMNMUmtIvSJQK4QZSh2flGVAaATiXMgV125NySIoClwPpV",
-	"vt3OoOjUpoGZiGInKmblTjNoAu73Jb6gbLUrKMxonSMvzIIcecmr6T50bj0kUGE2QeejHty7vKYHEzyg",
-	"ZCWMcxVYliTD2bsHMmoVIzYqfq8pg2OifbcX3IJ72Y3c/gtrRDlCiQAwnVAnEASGSsybyWu9Qt2l50D/",
-	"YVnQIu6cRaGtMdQdkjc4Twq3NQ6DfwIr8poLaOyUicZhqCsBRgtEIIcS7WWdwoaojjE3caVOTPFDIylg",
-	"IKvRLTcnugl8pwvxPaQko179TOHotfux9f4K4meI0tWVVsZ7TX7E0/xoXXj/ys48D7vRqsjO8J0H2rRj",
-	"MdnkNl+hBnUN7XwfXDDe3rIidFT5oBG5TBjPtDIGxkXnzcMJ0q2JatKBXNCTHrJrLo/QlLtInfyBqqAi",
-	"r1LzUL8IzthfAJTopfJNWyJvEBVbKnIskhVAXq4NfeFic2+D6b4eVxx6dDsAVu813W5tbj6KCb90OrNw",
-	"Snljt96awFAh6dCB9Rmwebme5LA6k8cXc2TfXC5bHEeUjzZhNfVl4Lrr2XjRFWkgQ0cRaMMk6LXuzip0",
-	"2IG7Vf2v1BQuFZXVvCjbiMfXrkyVGnUdWIF3OPevXj1+4E/87bNzX4cp+JnwRq9NMRvW7GOy2Y/824ek",
-	"q/5oMF7tvFtLOuvl6+0Jt0IXvLxFu7XLJ1sZ/1wTGN+SqXwpLPqpK/E09Ol9HvxGYyuh0n2HPoZxvxew",
-	"9IWtsglK+jsk56+h+2VCOw2fFh793PcHtrqxAKdilIvpcTYJ1Bi6ohka7lI0saQu7kxcTbnMRT6MLBcp",
-	"eUSlmCcV0lVRfFDqoibSkLw0ZZ0f/5HxpFJSaZFZLs9nJdfJQM7Ybxnf+env//NdTFrf6KHSNZMIhTJM",
-	"tZhy7dwhIFaZwtLCQAmZvLDo3OA/Ho7QHOgDnd2o3WsXsmWsmILxuiwg7s45tIGZ8gICNshyNXkSxJVC",
-	"D2QYp+keskhhmqBlCqvwdjgEbwmm0il3Gc/o9W/dA/bjD+xP/ytzXdjB5rvB0UOLktviosqDO5CxNSlT",
-	"kzMMPqgauOPiq1DDR8OAFJg7HZjxH3/4qjuQnb88/ounEP3Bfvyv93q7vU8P2cOZ5kBjdo4fvzw6Zr9/",
-	"dfSUHU2nPfawtwvxTg7tPiCYDqQD6gCtLJBHYAYxKAb1gJ39/v0V0I9NMvaeQCCbzfxM+reF0S4VD90l",
-	"5Pf1zUDYw8WVtt+ZO9/Den10Ff7IDH6w1JoLV+XNIZqX7ud3ZQVbNV6LdOp6sRV682egsFqTKFW06KPS",
-	"6pcAcf4uR2m1ooqAWTdGnHxszEwY0DFxmQOrA9WwToBF2d37nJ0V1nQrpS/41EpCWjFe+SQyLWzQKKHR",
-	"1QfayHJ+GKI/hfYQOPAceSQHpzKQiDqN/lTo5luqc2D6lrMhL6Gr74n3wLp/JoYD274mEAuXKans8m4B",
-	"wA9MIg/3Sz/wHy/w909w8GwzTpslIjSOVKx5ZdPXIaSHch+sTV9OxIV67SQcrOnQxXVXUfj93W4lZrm0",
-	"Xi4TJPpCD2QEKeB9DjTWmzt6RQaxVnRp7K4nFR9Ma10jDfuLs0XT8jHzyC+CzYWlePdjooXMzfvM9m5c",
-	"AqQlGd7rGLRR5AgqLAYSPMXD/o8S9aamVFNArsCQ9jNuRIwXNBGcDE/OtHb6AGuqoldSXyKt3O6r7pLJ",
-	"Sebqsmpwrw9QtnBValV6iAxTYGL0H/9xj50+YJ1LrgG8ljQpP/7jXXxIjmRdtEQrCQ5Op2NxOeYaogbg",
-	"v53Hp8/ZZ59/1t/ec8P5Whh7jnGB6E+1u71nqsoTtrt9F5Bj9rb3TMJOtvdNwva3d8myv9u/gsh68HDt",
-	"ouZEwERyCm+qJtbUI44M+ZhjhHOc7v4w/BUHToNmy9noBjINDRywES8NJaq/KFRJyjSvJjM4mGZKQ/C5",
-	"u1Al+rmhE/hIXHr8EwDray6OHQvtnLXCogOABq0H+t1JyC5CDu7UZGGqSeixI8IWYbsIK1KNaiBhYx8y",
-	"CMWWGWHHenhgGe8IDBtArOCO5BrBc6yfC9T+wSLisWLuQk8i/hAjzDORuEigM4VR/3PychzI3x8zvMjz",
-	"mRaGQkZ5lmmRF9YhOmkBOk0Ll4rM2enzFw6/DCGc2yVK7M2Se2QV3MPt5O/6EFn529oIo10bgwHn6UUo",
-	"1oIM8RAj74F+xN6e4D6DrqgXS+E9YGPcAjLFE25bWhdX17Ru1S20/aW6hKi3efNMJhUbhLEndQKaEPCl",
-	"jYj0sl769+2gxnsxpvFeDdJ47wNDGtN5WubWKHQBkwJH148oCZBKMq9I40cb2XvIjKGLkfUch0ME9gea",
-	"QmcoUAfZjMZlDotTv3kjtor2+rpajmtsysR17UxLZXvm4vw9sV/YSi3cj9pNG4Ah1bWQMPLfcH7YbnqQ",
-	"SzmIeQcH8knegnSVZUJaZA2ku9uIJxrIiBWieQ6Ryr42ZD3oVAh0viyFdwNC6x+i/pZwd5+0MCNSWer1",
-	"qsvvRans6Vd/8fEO/HgHfrwDozuwmPBzsWMuzn9zNSlvEIOGpOHjNXb7iP0x6aV4MqTdCSMqdsu3ErQt",
-	"spkGrSFQxTPBtdBHMzveOvjDN2+/CQ02z8PjSqZH33I1qjlSVLFJnUoYN91etd+hVAuc3iNCyI/r8geN",
-	"QkUi0AW4RU1UpZuTxUofywuhjWBTLfIi89lqvJauBpQY11d93lbp749cfD/2JXZJrSccFpdthatYuXpS",
-	"hiRExEQBauHezKp8DrVWnB/4QjNftcaLJVUAXYXB7sAIJBspnYmo9u+yloopST9mmndmoMhrBQRXMbUc",
-	"Q7RUWWSFiKfVFWir9cVjl7CvF5NveNCWKAW9+8KEqXpIkShFZrWSRRZlF40XF0u3VPsEzEXChLwT+OdE",
-	"WF1kvv4oy1GvifxHu+Wbt//fAA==",
+	"7P1fb1tJlieKfpW4qimYzNqiKFnOTEsoYJSy3eku/yvJzuzpYiZ3iDsoRnszghkRlMRK+6LvNHDR89rz",
+	"MMA8XFxgzjnz3A0cZB+ct2yct0H1Zzj5SQ7WWhGxY5ObFCnLzqweF1Bpce8d/yNWrL+/9f3WQI8nWgnl",
+	"7NbB91sjwQth8M8T4czsaOiEgV+FsAMjJ05qtXWwdSoGWhWWOc0uuXTsTAy1EcxAEanOO1vZlhHfTaUR",
+	"xdaBM1ORbdnBSIw5VDWWSo6n462DbrblZhOxdbAllRPnwmy9ffs225pww8fC+W4cT82FePxgsQ8vR4IN",
+	"4OUdy2QBTUp4POFutJVtKT7GiouVXfl3Rgy3DrZ+tVPNwg69tTuvXj1+sAX9eVyI8UQ7oQaz34nZYkeO",
+	"2KCUQrntwUhbodhrMWMtzqA8k5Zxdq51wQYjLQeizdyIOzbmrwW8gQmTouipSyOdYJYPRYc9vBBmxl48",
+	"P31JH1unjf96oE3BHBaWjrXMVNkDZoXoqXxgBHfiZKryjF2O5GDEeGk1G0p1LszESOUsOz79ip3pQgrb",
+	"7rDfiZll3AhmB3oiCuZ0T7mRYE6/Fsq3LJRjbiTGh0wrgQODebX4C2ZVWAetcScuhGHS2Z4yeupEh8Hq",
+	"JG3TRJx+ebS9d+9TpodQK9MTYThMYgZFGaxcT1Wrz7gq8MWZLmaMwwfGigIfCzXQBfx9zqVircsRTt+E",
+	"DwS87qmxGJ8Jw7QphGGFZkrDpDsnzCHjLJ9way+1KXLmP5SWlWLomJ66dqenttkpH+OAM2b5OOkqtp4M",
+	"LGNDaawLs8FgI5XCieKgpxiO8pNPtJHnUvGScWUvhfnkE2gO59Z3H5uwjrupzfxoYRCM5U/0AJvN2+xS",
+	"uhHLk824fSImJZ+J4oDBvs4z7JvSbiTVOZMWKoB95YSCQVM/qQtswI2Rwi6rb8hLK/LaRDAcu3YjYZLZ",
+	"0Ib6Fd5A5w/Y/t4eNN7KiZwcpI38Tszy+hTDdi0FzlV9LmGWnCxLJhUblvJ85A7wK4vUB4fHYX8MNew9",
+	"HL0bCcUMjgOOCLZzFCvETT3kshQFa+1fXUH3711dtVmhhcU9MtIl7bnXYkaNvRYzaAn7oo0ooDPw3Bmu",
+	"LB/QLNB+xkOc0YRAHTTX2Ad/PF/C2cqhMvheXA0EEpEDxunY3YF9MTCCxj7Sl4ppFfY0YwqPGfUjY1Yz",
+	"7scKn+9378PphLWvjrG0dioKNlVwDtxIQC1In4y40K9FmDb8LC6iHGL3fU8uuWWltnguApGlda3I7NwC",
+	"b9XIPb96ItS5G20d7O59nm2NpYq/gdjDoYQ6v/3D0fZf8+0/drfvd/oH2998v5vt7n3+9t9txVvCOiPV",
+	"OdFkZZ2ZjoVyzReDjO+ZLIRyciiFyZCIaOtEUS0S0NBll0fVyE0vkcexcez2C34ujqfGatPc7VyJK9cf",
+	"4Bd52FYTIy6kngL9OxeHjJ8h6YBNXx0ZeBVH8d1UmFk1DKpua90u+/5Bd0+matnNa6bq/d67b6G8nWhl",
+	"BfIBX/DihI4x/Bpo5fzi88mklEQldyZGn5Vi/Ju/sdDR79ds8QWVokbrQ33Ky6E2Y1EwO1OOX2Xs0mg4",
+	"YbOJAOrB2QUvpwLuDSsLImJU7QEbh7I99Zenz59ljDPawexyJIxgnKkpXj5notTq3AL9ZlP1WsGxH0pR",
+	"FlDEHxCmTU8Zrs4Fu5C65E7gW1xqFu9MonCRmsHUzODYvs22jrUalnLwQWcPN4qwemoGwKXBDSdg457J",
+	"gihgIMwtTqwcg60uLuFiL43gxSxjvKfoFZxYPXV4k7mM8VgYXtDEw4UiK1KElC7cID1FV0jbz8cj7EYh",
+	"1IeeECLMJR+8tkwgq4cMGCslEiapWH61HY7ONr6zeWcLiR7sBF4+NEabD9nt0DAT0DIxd8imWLhmtSpn",
+	"rLclax/1tsJ9XF3nBY7imXaP9FQVH3regTIVcTtWh0RcSeuwZy/4rNS8eKn1E27OxYfuIM4o8ATCnw4r",
+	"zIUwdywbaDWU51MjClbKsaTengpzIQfileIXXJb8rPzgHS6442fcCjbgCmbyDNaaD0YCuNDLLI5BDgTx",
+	"M1PngPwV+lJlSNBaQ6ShyDiBaCQt3txcDfzoLdRY+D12JgZ8agVe27Ft4HOBsHJVnM2IRZkXYrejFNs0",
+	"WP/1TiLv4nhfav2Uq5m/dOzPQibu2Hh6DNBOaZn2klbYCbc13FeKT91IG/lH8UGP5lNprVTnWXVdZvES",
+	"1IYRn1qwM8GNMDQrc4P++uuvt4+mwPk76KVYZFjyL7B0HmQVliONyhl3zsizqROsdfLomH362b1ue7Xy",
+	"Yp4VpambGD0Q1sIhfKicdLMPOYNfi7Lc9lyKVJOpl3POjOCvUW0wLUXgJf1xPPQzYHMv0MOx7Sk9HApV",
+	"wBFF9qOi4NNS+GvzlbLTyUQbJ4qnopD8Jc7Hh2Yp8EjcseyYWt2GXsDhACqklahrFxgfgJxlO8jT+jag",
+	"C0f4HIjNY5g27HtRSCjDyxcGKnBS2K0DFIfne1KVZm5khAXR0R7iTGIfgj7B62ugS0KdSwWcUCGGfFo6",
+	"1iIZbyjLkq5+TcLlWLiRLnArTpJ+fL91xgev+wNeDvqlvuw7XQoDPehPiLETV4NyauWFeBp0bLR/YXdw",
+	"t3WwVegpXBQZSGX0wW63mzWp5Ig3hSWv2hxL1QfVSX9oSPKFNlfVvXbNH2YkIz3WdiAKbp0cSDfr83Iy",
+	"unY3HuFHbzPicGDRNywHvF5fD/tDuWnJMVcFd9o0aB2PRwI4yEvQOaJOY2roX9pqF8IUcuAO8QeK9aTs",
+	"48WFtNrMUG5zYmyvFQehnWd8LKg/V4+p0G41v9wYDuLmVMnvpsK/h9XyAxDlxqO+6hv7frcCbOVSXIjS",
+	"eh0FfXovLbe3qJ+mgqZvv5tyQxflO+x/PXWlFKY/0Pq17RfvbbChHeumqI/4o3h/bYE+ZcP1vhBGDv2N",
+	"sUgJ6tv+za8fvAGpOylCzB83BWs9Pv5q5/j4qzYb8xnqz0jDah3pppUeox4WZfYOe+Cp8F43Yxw4Ifbq",
+	"lD18ccROv97+fP9T9hSpMPu82+0+6KkBL+WZv1HS5umIlfxMGzyqd6wn38wKZ6Fhpi8VcabvYcbfxif6",
+	"7G/EwMGEVlfTC13KwWzDm40MEPFSQ/WrNgORhXvLVjfWxlfU4lDf/cLZ5GJZo/Tya2KNwg2XxBqlGq+I",
+	"NcrVLojN6XmNgjeQ67V6UCPW65Sokd4bUdh1KOkGpebo4hol61RujQKb0DjgcYnOlaUGZRhIyY0Uz7JW",
+	"kRCx5eQLWclru/k2lXz+kC7U3NZo2rBLz83y45itJBarCcH8PqnvxMVzWFuz5qVf3EbpAVu5ht80UeGw",
+	"PebNxVaeK6xIDQTDCe5srbwDup176R3Q6Xa7uw177EjxcubEtdS+Tq9JY7++GSPb+m7KlbuuiO/M7/Hb",
+	"t8gdXlvmFXwzvwuxf7584zSnDW0owinGqTTYMoL+MrITIP4aAcIuiMQgBNsO+9qrEBY/d8Es0lPV+YQ6",
+	"LAebsEWj64zl0vajZSNnZwINB3n1iBRnpPSWcNU6JwovGfZU+I4hK8KO+lc7R31pI6MDZatBDbQaCOWC",
+	"mR16w31/vOjw+DSps5TC1mwZl1IV+pK1JnCWlAtqhMALaWPvsLHgij0+ZaGWw8Am9NSn3Z/+9j/v7t1j",
+	"v87AMj7Wij0+frH99JRN8BwDTzE0eszGYqzNrI3jLfn5uTfzg75mJMqCVM60FmBPIaOLtOzqf/zHLvuX",
+	"/8IKWU6RMv7Lf2FD4vF0OR0L9i8/hOHysZ4qBw8KM2OBjgRzblznnoKdljEDOmrfje+mvITd7/tR4/X4",
+	"YGBEIZ2fYSPOpyW8w4Knz1/AuEVPoZnukPGqLjYRxmrlTR7BFmCEnZaOuMX6OS3EQI55aRcpygl0lTlN",
+	"CtQxVzMWPkZ1quAFLFxFdhwjdbLtpFRmt5nRTG7mQjiBs9ZH5eMS6WeVdBBOTT+ckM0oj7R92pH9kTwf",
+	"Lec5Uu75OoGlqhOuoFupMqyxuZYb+3348lQgMYvb8MYzXNWwPsXNtpK90fd7Y3GfBXnpLjjcCMXysMvQ",
+	"o4Hs0u36lkrvrd0Gd68mej4tpHt4Idag5vUDUkkIc/rREScvhkIrkTHROe+w3ExVh3wyijxjOVLbDpHa",
+	"6jefTIy+SJ8YAd0URd5ZdEvIoAdNlv1n6EE0ZHPeVRwqaq5nbuG5E9tOjkXTt4VwXJbNTOSEGycH05Ib",
+	"mzGpBuUUlbs8mFkN2he41arT6GWRXsPcbYUBZluRB/Otf7NsHZ/o8w1XUVwEX8S1xJlktyzIM3Mj8DU3",
+	"9fWY4+1hl2weuiCAMONGV4XXNR941TIycuECTox18R4cGOmEkZwuu8n0rJQWzGTnU1lA4QYdQv1e6an6",
+	"xeI1DHC/gHqZTYwYiEJgVbS47GzWcNv0VHTVLAW3wvv0hJle2F1jqYLCb1FaRFFyw+WFJZw6USzO9CP4",
+	"nCFhQRYDKmcDPS0L5o2LoSzOliIvPlEg8cG2cGZy2pI52aYvR7Nka59pXQqu6sdmYcyR8i4eqEQnglsB",
+	"egTSBzIqh0xNy3J+BCMOW0Wht8gl/u3iQJrZfqiFzLmkHFot9M9vV4EuXJURwfuaImtAPQKqXYi6lhg1",
+	"xJfSCj+wVE28OHnriAw1PQOtVDLbSWVkj28cihHR/BSdQYO8C2wVHqdGCmrh3IAYumQdhXUsfgNLMxbc",
+	"4plF1jJdyndesGZ5puph2HFxmrLqlNQFUD9VK8luNe9NjsrwMlxFCe2aoJrwgOWVyA93Hsn8edZTeSLv",
+	"w5t5UR+eRWl9WpLPasbyKJ9jJUbAmwsRub8+2WEzlkdxHUuBTDTlZR9Ednjg5XKLtYy10k4rOYA3hZFD",
+	"l3dY8pS14pwBEfQbps38IliSo0i+choIC+ybgStnLFZCZnaUgLR5jeIf+F51QoPodhBWiXHHpDoX1vun",
+	"KnEZPdNtqSeiJpyhuITCwYNolUXHpcplEd5WMtxel401usUOhHI9FbgSasNmlQPU18K6cxBFiU0hkZW1",
+	"yEH8Lx6+ZDsXuzvOCFXYvN1hj2tHnU1VKaxNSUcpLWqwGbc9FSc182cxdZqmozIEngKYG8V2u2yunz2F",
+	"njZZaIcqqJaqhUSdngZJj80RTHDeyqNw3ZeqD7xRHkhxfTEqSmymytu50QwQKmBjjrdyaQ+TUd+xLBdX",
+	"EziucZ/a3JNR6Xqq3uVqf2kT5zLDXiPNhTn0yn81HS9Rq9UVag2qtFQZ5o/XVraVar+WnK1UE4ZfJSer",
+	"UnhhT8Le38q2cJMTkapPNdImdSHMuVBIiYDxkBZEwonRQ1mKhCh5cpxtXW3D2LcvuMFVgElAMvUUXIH9",
+	"RNCDMBv46wkfvH4+fCRdePDl4qzg8y/44PVxbWbw8clpnB367afo1I/qoZ8gfPk4mSX/NU3VCc0UPnte",
+	"TRf1N5kzfPDATxz+CO3Yx+oBzR0+Pq5NID56EWbxRZhE8tisdDdN1DyYs+aUPF6jUREQEASv0TCCUBv/",
+	"d42ECZ6kEnnNhsv1Um9bWcChj1+RihNoHe7EC17ajHU794D4djv379+/Vvt5//79mv7zXnOvnNHlE7hK",
+	"7YZ6wNORuBxxg7w7VEK+VZa1Hp8+Z599/ll3e68dWILohQreZ6VU6HY9zwE0CaaosljTWuBLlPpyzQK4",
+	"/mLNjy+5UaAg2KBDoci6PZrjeXz36vXMdaQ26qw2aY18Di3VybRs5HSqqxCYx1b8KRzjZSdjx6VUHXY8",
+	"EuMO2/uMtXbvf77bZvv377YPWL67vWfzHnLtpGk8EzOtCvbjP+7Brd3y/W4fwqd3bY7+PvGbu+z0wSHL",
+	"96AS5i41MArKisEUaE/4LF77WCPut0OWn2zvUxmWFMmg+p7iZ/pCsN/g98ExywfdiFJfsp/+/h/2qOX9",
+	"7V2bs6GeGrbYck/FpnfTpne7VzlzQtWKeHck/Bp1wnoYeZj6pQZTtpVtwXRsZVt79AuGs5VtQX/gXfdq",
+	"zcsBFnWXaoC/7oa/9uKzk/3w1/5u/A7qh52xJMDi+YR/N8WAHisco6gI1oJj/On+1FRHewKUQ50HTVYI",
+	"Vrm3u7dW8Ep/+5vf/LsmmQQjGTe1UAT1P6mf2NeRpREcOmnrErL/mMMmL4FXHmgxHMqBFMohI11nDmxO",
+	"IvNAX3AjQRLI0UlIjCdulhGfTCfakspKCagdmsHvgOxlLPdSJLJhObgg+VC0HMUNi6J4T4Eo3qDW5gMi",
+	"E33uGmXAioMD6Tl8Xb8yVunHeGUUW3g3SNQ+K2XZ8B2UwTFtZm5vMrWnK7M48MeKjXUhym3x3TRE2hXC",
+	"HDC4cbhhfzjrZuxs95vMP+hTjCH7Az77bsoLw50chO8ydrb3zSFTWm37CrB2C/x1/hT+9PqSlmeTFcuV",
+	"VvRtJ4aX9PFt3q45j63nI+C1SPeaJmI5O3HcwETAdjgjCQnNGkEhEJmLtUzd2Va16ZvaDe9ARjDyKjSc",
+	"rlrG7I//1Pqr//t//9uv/6r90//n//zx/8iY0Zc4e8l3tHK1Kbu1uVs9saTeXn2wfGwNj3ZGNFhihOH6",
+	"Z6wYNhilPPvMCnFuhLAwg0MjRKHHGVNwW7FJorpJrEzkJdu/EMY2Mr4vEwMknAz6nghUlAIpNM4FdT9+",
+	"v7Pb6Xa6zap775ml1XUH+mH88G22BbZK26TKHDgwiKD3L3WEuudVb0oHzdvabpiPpHtU8vMmSjIS/EIK",
+	"60iovK4iFLhOR9ygYk4W64XjZWkwZKPSNDr0zNmMpHVSDRydXxuEkyFJJKvNjWXk5VcOiL6C04Dye2P3",
+	"6FUfVOPLNxV9xMJHzecDuIRa13ebuo7k9bqeI+GFr1XT8fH3ezVhrIWbtEBnABEUI1OFepFrJzOS8zXi",
+	"Py/Es/g1aG+1bLykyE8walM8S5KFmdKGhQ5n7Nzo6QTiOGaekktFl7mV1fW2vlMy9PEFdKvpQNScx+Zj",
+	"JSAGUBR1Ag2XiBMGpGnsTGtKArV3vapdse0bKu1Rf3jduE7wo7eJnsYWK0hrnPpCXEjqum3Ndq7aWeDc",
+	"//TfLtlvmWKXOG5mB7wUNx0AmpWuHQF95b9HxZDG24GX5fPh1sEf1qE238yzwS+MwKBnxCBgkVbHo1pz",
+	"mSFjrxF+G5KNgHz2+uvTuzlOuQEDJUw+fbCEQ0DT78Leftd7n7Ai1jolp/Rp4oFVH8ar41dP2UBXst0S",
+	"56GoRVqgrYFV6q9F9L7yX0fi52/Ca8v5z0AZgZu5P+CqkMCXLCVN8QtQxA+0CeAMOZ86nUcPI5RoroC2",
+	"Y8VoIi/la8FaKAjBriMVNkxRwkksKdxem4wRNToOvWyiZWGsoDNUzYrAL/WlbzzgufBSFJ7zUbDTSmkR",
+	"4IXZ6Rj+UQGwJ0/oTDNfFEe1/hn+OhZZPMgvQ3y8YFPoE2rQtRLMY+eQXwktD51iDPXCGy7tTR817aK4",
+	"9V75tgcjra2wAWXBVgJ3Rrg60bbgmQbaAx5BI4I0eANitRG9uH4maD8Wc6OKw731cSVd5fY1XWzY+B+F",
+	"0f0RV0XpF3lxc8EndWJgKTTTeyyyS2FArzJx3r/B6GI6gGMk1VAq6UTYn4ekWgjzogTjRltxvfcJ4UkQ",
+	"AY+M3iJbl9UxO4Ls72lfYMvSXd08+000JnD7TWdyfhrnxPvF26QmftavexSn6rYdaCBajBJ5ObJmUS0R",
+	"mebAcFT0Nd4aWU3nUpMTE5XIghzWqIRFcC71SJvB9ZqtOb3PEheLsSYTKG5SFKHWl0PPuJWNPjwz7/8Q",
+	"fGqriBapwMJb2EbidyP9UNDyXX8zT8djbmYkfU6kEXa5qC4dKwW/IIo0EMBG1yyW3ljCECGmZqjQSiyd",
+	"wCU8XyLVcev6qdv7+nTpq7RUM2kqOfphpPUz7oC0hOuJu7zuitFkblkwNuAKhN2QkedaMsNNw0rWeuk+",
+	"fyLtpi6JN95AGygY57bSgnaA2/5Ym2u35JfcPtWkFEhAiK4r9UxcuQQwaGEZ7Fa9uqQ/60z5s1Ro3UBt",
+	"jl57PNV30tHnRWEPErgc0na2mhR27cxbSnRJIBx66gZ6LEjUiOrB4VShoeqOZX/6Z+QoIeqQZJCeEtbJ",
+	"scfqUYORNgjyUwRYJ7L5Mm85r/w4aj4noDkPnlDHX1Ua0MHr7eANIIr69QyC4cwS6ldP5b5+cikGD+e8",
+	"w44qFCnrDEfpEKbKBod3UiDbTk+9MAIuELz28X4nhsizxFNLXZNg1IaeTOLnqKbtqVZOZCoHFyFV9PFL",
+	"i6B2jQYBmqhFQoiaK3CSFCVy4vRhGovAWvgWhk8xGx7vAb6DiQeJwIr2gddQkJfG30yLc1J2LneDXFSt",
+	"oj8n0cOFr+Edj+e+Qa+lz/tXKwAt4YYqDEfwN8ZZqc/nlpdfSdvsmec3KVQeLHPBX6MgDqAs8a/Yx35w",
+	"PrNSgYepWbTRpZicfW+k+37FbK0UXf1mXJu+eY+IqOypKv90f2nt1VZfU9p2I+H4Jt/2Vygb/fHtb6Ly",
+	"mSOe8/NdrWy6+WpbLQxiroNZPFBh41Vr0DRfS2kxrcBmdPi5Egv6wQp6r5D8XGkLZAYiY6qfcACqW1+6",
+	"ObAm1lKalPvaMKWZ0ZooWY0ooloIPyAvmS5+EtykSGuzCmGDCGujTSo5ijAobDeSRm+qvZmSbTDv87OW",
+	"IQuDFSXhJjUXurbhoKlt9tElennDqqNZotFoYPj5TfscXd5wLZtjaXe73R9/aM0tKlqfalPd3qn9vLGK",
+	"lMS4G4+HBOo11z0JXe2nLTdjt5UzFgpYwkHDAjccKYnAy/Tr89pn1Egdsi6d57DVbsOZmvbW/LlJpjJ2",
+	"NW7iZJmWzGGyMRdOV7ZAIBr3YXKglhLU06jEnVfvY/wGoiV22FHlToz+FRNCaOqTOj4/jNE8FCuqaEnD",
+	"5V//eivbCk652G2KZVrXY7Pq8wuq9SRUmrw6qupPnp7EpuLgvcSyaYhXzVnkFjxAajby9eojAOF+5Qiy",
+	"GO1VWQPwI2/8leSnA17+qY964jfc3owNvTXr7WaW09s0fV4D9HA9zdzUqHNzu8mi4eOGlguvaF1Tq/vh",
+	"NKGpyrFBa1jf9yu0iE0U74EP0G7yEKA3bIjRhQhaK0XhEXmisMhaMSjgt54ckm9mEv3dPmS7dMeQ/r1z",
+	"Y8idNdygH6YeIxvwxNfZMjsNLnI+rPSdAkVXW/EDc06+hdSTcFPbGlXagFwv5/yMIIxA0SQhL7njqzJN",
+	"G2zBCQDkqj5Ft0Ij1+o6q08bXtVM2WtljUhHkJZPdPa+xbm+JlG2zUcpbrz1JLIlS7J+0H1trRblu7Bz",
+	"/I2HDWRsdxsca4tGN4/DiHWwWHL++C4Lu28OJl/cNisnMAEU32AKq4O0lgJjbrnq+hE/puUxtvPbeD3l",
+	"+0tx5RqU7mQIEaRX9BhpRqrXjDt2pt2ICQUQlmEWKyMnwBBZiksDh3z42/tzcSN80cjV187S7fQ3OENB",
+	"a0lD80qTuYPVtPbBj64hZADuH++0x+dd9mzqs8fyAnUKyrvc9ekSzQ8oZACfYSYJy8YaNbdcsREvhxUI",
+	"gONl8Mnx4Xl1L74cYguG4rIfD5/tD7Xp270c4hN27Ld7ZCBHKzqpOXuKWsZuQ9gxhePFycNu1OPcEEIp",
+	"tpDXXfobB7mVbTV2a00hwk//A181qnS/DhX7l4/E5Ums/pE2p3soNgQDxdKYZ87A0oCpEEhPZJmP3Ycr",
+	"kSyA+JIcC3jRrEL9UvDSjTakCRVjGWZPv6aNWMzWnBpq9/nvtkIXTqjw/C73TTVt7sen64Xkz+98QshJ",
+	"MJC2E6WdhwZKQ1hXwv8s8i/V5334eE31xooI/dXgL+uBzixUuhL9ZaHOVRHtRgwgfHi2QXWbqn5izPw1",
+	"bhMLI6+pRuYXZq7r1ZwkU55EqfsVit1p3JIVK9EUweiRURBPK4grWXBByzylyoLzv/E7dS4y59P9tQJz",
+	"vplPMNPNPr37tjFU57H6GwI6Wg8Yet6AVcGwrXX7pezWNw0YZY/B7GfY8fFXgAtCtUPKDLJc+aD+xN7v",
+	"RShMz0acli9ETlSyuK2uJYSjYIjln9MTH1f03aDvf2cV7Ji/A81UtVE/H9UkdxAoFfdExwMz1TLArNfj",
+	"k1jkLdwaNEdNe8/f5jFlgSitIEtrKzJAaFQouXpt2zWtGrdBIG60lr2WlN4ifJ9EK6QnUQ4u4BD6/55t",
+	"ZbUPsd1Ksg8/aRa3sq04uY1d8FaPDWF+V8m7E008/PUaoHdctetOQOWJh0CEBG+TXk+Um4h0BHroU3Hh",
+	"AcB9hQLymmLzAofp58CvMR6mRrIXqVllPb+ZtJFQk/VFtmucqwj5jyYouEIxScwkRIldzkth62kY6pFc",
+	"KzVs1Zdvw5a2G5iEw5SeYsl5ZPJrhKq5Na1UY6EfzQtK0WUb8lbVQGN8WuUonhqcKLIzPyPUwQrTKGN5",
+	"qS89PYVLOI+Rlw22SyrdzJUsj/a+VsmKl7+eCLUs2ZofmbTMd8HHJJ/Nku5DBYyimFu/+env/39tzMcW",
+	"ZcxlDiTIHyy68kST8KCEzTzFDHd41O1sPHHaQZKLhelM5zHM4eJURSXJOsjNyyLiNzRkYdC7D4QPGq+w",
+	"nk0b8gl3grb/jXiUtaJuA1AotxEf6bASqIwYCHkhipsRixvRtSLRIq8qFbXNaxlJ5tVdye215p3VpKOv",
+	"6EpVY+NCVgF5m9GWl6NU1xCUtyU3CH5jocYmhUODfHYDpwMbOlzvE1h8U3Vecl0TpJL/gJdlCBML72+C",
+	"UD1v9qVeNc7yTXBBHgS80+AUp1x0GfUYIRlF+84Hylif3BMSf0onB7zso7UiB7497If2KpixuSUKtQxW",
+	"g8IAYMnu7uf7d7f3WCgTUhQOPTiVmweMueoPbuquUhvcTboT5iJjsxv3YhkEJsQuuBEkmBWmQg9EoeNy",
+	"NIMZ7yxB1JxHuV0+Ks8JMyoE3aTxwazeFN+v1A0Cy+PjL9nv91jsHO2/jN3t3P3xh3/9u53TGzf23dLG",
+	"mnZ8xna779Sgledj3sxIxJ3xr3+H5yoqn/BI1aNqcqynj07ecL+vGfWflFpfOjmFQl9gmWZP9n/9Ox/O",
+	"RBl6KYioPR8G5BKQMlUsDytrUf5urNGfEYr3PAUc/0XOodiiZVw4j9kyurG4yVdiCj7R57IRgYpARe9Y",
+	"8FH1uUASzUtQuwSdy0qVy9PogrARGxMgDK/FiZ1PibIxXK83cJMeOTXWLrI2kLahb0U57FdBs81GYNgH",
+	"cE4W4smwDsugkm2qhGLlANVnW8yEJWAjCZtn2G5mYz0HsgGYLhVohitJZbt1vBKvR59I5hF5TF9kA9yJ",
+	"tNYFu/ZcpBm0cC4vhFqC/zCH+Ld0zVBqyYPHTp5Rbsr59RvHpG+xRq+oS6FVg4IoPGtU5UBeCyQUfX4u",
+	"+iM9bXKOfxYZCU9TfNJ7GtdNgWY3QzHwoKMLAwhOaNQzgBIc6rr6uqY8X9fR6CbONEmpvp6sFZsTSz/3",
+	"3y8BdE1cb9KluS7oMPRiLrAvnt0sJXLL57J5m8wF9xHBa6LwRH1vEOFE2319EkMNXYvVHapd3tcbatNu",
+	"cGGQfL0eXU/xlydGqoGccG+R9YnnOTNTckwf80J4700kgWezyhsoQ+t8cOx0QZsZs/3g4A5Yw41gxHBq",
+	"hWV2OhhVvqFoId7f22t32KlwTLpItYxYxB4HWHF/AQHlpFueOQ1EBYz9t3/d1NR317hE1K+i9Ti4VOH4",
+	"TbYkr0G3c/9ep+Feud5zYa37o7JTe1AZ1MKaqSJOjyump25bD7cxUHwBpLanKLtjK4+uoz5VTIpAi8tK",
+	"nnIIsduqbqr2HAxtAiz97vcPyFqQxd677aU+P2G8FJQW9M2gZyaJ4hY89j7/7PP9azM+3ugyW19vtOKW",
+	"W7YPwI4EehuaH0oKccnhuPtjC0TgTKTgJn725ijBEgbwZ7ohPcFsviabbsNIORrJfVi3uZzOpA3O2Yz9",
+	"lp112W/Y2e6PP1wdsrwG1+Pf+1cxrjHvqXo5+Hfvxx+ufvwnQn39fP/TT7f34Mg8WwDNa4HKTp0Jc/7T",
+	"3/7np9yA02zhMmLWMfZQFO0MZSKKZlI9tRDEd8Dy/UlJ3SvYb0AvBFEpRXuntQs/r3YG7W/P2lkNUKan",
+	"/sAzdpaxQcaKbw5Zfm+NKr49z1hSLGPn3xxCznRpaxoYxh0iPWTMY2h76IY5ZdGA9abd7l3BuoQPKdWw",
+	"JEkyY2e1dx773Lv1gimVjNH+KuP08YAVzEg4BllP+WeCFbCvS6nODxlaRI0UIdftGXRciXMK46IE8lQB",
+	"1dxThRwO0XUYUx61M3Ze7xdYCMbCAYD3Ofst2w0zsf/iCQKMT/Sl8BuL//jD1bdnfv5gwsXVpG+5m9J0",
+	"xI9auzj14tvWT3//D2c//nDVhvjhJaX6eji0wlHhGWzBJTWEZZt1v2nciMTNUMhwOE4WkRvB4p7v7sy+",
+	"3cuz6C+G0bg0OkAaHwuu5ly+qPqtbKt2hrayrXhwAM51Auf3Hv4XK6Pw+mSACw/8iNf0hMIT/yR0Jfn1",
+	"PHQHn/0+6RM+eKSn5sWT+EteiOrXC99R/PHwanKadnbx4XPf37fZVhLivigScksYmhTenidY/Ij8NJSl",
+	"E8ZmAUem8lBLVL8UZ15K63yyEDacGrwh4ENaoNU4tAvw0xvh0j7HROlNw/t6pJnhwTwXLNqH6K4T7z66",
+	"t+CmQmAczI6S//t8zkdnd+/zGzjp/HtUGe3ufdasM3qBjOmmmAw3CPkpJOb2X2JZDW9vEkUEczCeuCWR",
+	"4sNpWfaXytWlHrxe1qcyqOwWShldXhfAvVI0o5rTvoU6FwcV+5hM4bWhIrSqN5BFJ0JPNoksx3auHa+v",
+	"dXlPbyaJ1pY2OSh7Xv5JDkrDwvvFXYmLiR95V0XAuJlv6N6n9Ya62TqbJaqsgGezbisAAyJ1/Y5v+wBD",
+	"g1LFWCppHVGXJaKFl/P2Vwl9TbnlN9iVcQIa1/Ad/XP+PJ1eVrm6pDNSeaXezGXpdiCVViWcIE+aOko0",
+	"yNProkCjYLt+BCF9f6M4Qiq6edAgZZ67yU45wZJN6vwlMY1NED79OW8GLDo3EfODm1NmhhFcA/mz0PGN",
+	"T+Iq03gdt4HUFKg9qccfLmRxg4EFxiwiTXjjRbBdw5NLHbB6a/A9oIEZn8nzqZ7aPpTPb4ogmzq/rLGz",
+	"l2BT5+iZRdgkIBugQ1b1U1w5wye6DIkx6etSUwKv8Os7eBVkMPxb49hA61HVXB92T7V8YosUR7BxysBM",
+	"U5NND9CE01NJaqh2xvKp8h5S/eCCBvLMKaKXB+clv/cqBtVnYVaaNDVBLFLa9YO9G5Yhx8AclhO1pQ0Z",
+	"VGibRmgvfCYTb8KVGqbwXVImQZ5pdHeo3PHA4qXPHJcqwoHmQynKUphmsE+QCPsbhiIE950mkxR8A5bU",
+	"GC2UYEZyQlgorsfSnktotWiGBo7jCnG2Kq0pftvoapn5sx+OU4KXB0c8QHbdBjqFLBqgKZrzc10g7kRA",
+	"mIyTOr8mCRVY3BGraapnGzajqX9ODner3exeGDHhtAinTkxukCm+lN9NdUyBPuFGKEdGnOmEOY1Bg1Xm",
+	"8YxBXIH/waRi4ycV8pHTpTCIH/fjP0K4wcBxAt9qACTy7fbHt+nMHyp1uvQVb1gBDvV2+0RV3rBH807d",
+	"1aQtDDbp/FyjzftGn5Vi3ADT8uiY3d+/9xmb0BeMHGhspyFze7N/GiWmRgchowMwlucsUBQhvREJoM1e",
+	"C0uwyR9pRE7gpSyYBG283416OCQrBYN7wOfYpxS564KxwVAfQeHG605VIFSLfLofFZtwN2ocjv/As+NL",
+	"K4DI1b/a9uLa9mPgU5xmsMTejybmQGec3et2l2aIndrmdr58+fIFow8QGr0WiH6vloxuv9uYbcFJ15SX",
+	"7HSkjWOWsG8iJfH7B2pp7Co9WPS+enXyOOjhZsH9N60s3PlTow6Q13ktxESYA//Ngd8heWerrgi4LgoG",
+	"34YxJgAhKzzIahvn4Ps1D8jLkPxXOnZmBH/dDNOLcd/CNJef2/IHjLO/PH3+jL2gQkwqpwlRUxezjOU7",
+	"iIK5Q7YJhf8I/2sAtNw/ynsKzubx6VfI/ef0hfRvD3xxPhb+c2+oiLh+xEheF21E47puZit8xA0Fpotm",
+	"zLTjr1jr1+1G5qkJ7w4DgP3HbjZBH1+V8H4hdt+xq0q4MjWrpmXDkrsbykVXN8lIeLWVhfE3zervfd50",
+	"cyrcTdzyU2+KkIPdIC0hgFXEnD70RFmJKo+uq/zGhLmQAwiu9KbehngfEuXKNRinaenimPDmCMi0Nygr",
+	"bR8UvVMjblAYdINrImPOF37bsFAnoaZN0IFTYTOrNrJHufD0IABdkJFNFBiChFD4UchocYoOTZP0JFCV",
+	"TmCe5PacSsHghg9Y1vUVfYcgrdsPRGo6GJSXSNhNoYDAYtmgjADqsH1ppBM50VF8AE4sObscyZKoRMEd",
+	"BzgZmDdO0382Q7N6iFdnLawEDpe9FIbd6971qT5OwNC7fQQi37wHTNW4F7mw4Q2MlDAZX/vy4fdzrKKC",
+	"zbHLWBleBLnYstZIuzAu22YlP9/2IgLGJxekvjjXzOkQcDKU595WuWHuJI+tUS3ktaC6i+AWm+BaxIZW",
+	"41mQZ8iSPZemvd4Ugd0YSVRuA3jnDZXC5HAg1GBOn7+JOShwRvWtgqzKZJ5VIf52CQtdx65t4Hu1aXw1",
+	"tyzUofj9XM3rIHARazrg5RJH36nC5L+UZmJFX5d/sVxdXS+50FjaufryZXHHNO/EUnCLOv0magaWL/Tl",
+	"5GVKvjz2fOrZdQiUDuoiVaPGAGHHpE3S+wOfQKhDVQgOGVhDfoQqRvOQ5UDuRqIs8p4KN03FXgWsz8zX",
+	"kLGpGkpHAUvaMDudCGNF4cOjeE+t1WwnDCNAVPk0ohjAUie2ydzgZgqD38q2Qs/XJijY4otahf7hSVqv",
+	"f/Z1rB5XcI76bXZMpepP7QqfPiLWSKhhPZW+XBJhzM/7Vgy0Kpb4Ug65oQ3BzsRIxpQBEgRHjEAIUZbc",
+	"OgosqEcbTdVrpS+XABmvVMNU2F2LYFzSsXPhyBSCI21NFeJnwIxncG9RlCfJU1PlIfbjnZ1ROiLeXkK7",
+	"cG0a3Gw87AKTim1vB25gG6/sqSk9C7dbE9M9KMy6aHGh7SwscfPxJ9vDVyHacUOxgOLbuKffsJzK2QN2",
+	"9T/+YxdmEpWtcAJlcnp9/v52inMJf6e6RvYvP/gD2VN8rKfKwZPCzNjQcO+bR2kAHOUBqy4R4IOh/owZ",
+	"MqVkIda1XADW6KmqDHw0F4tosxrfHLnkkPDi8Slt1Jh8IpCpngqgNsHMFpsB6d96mPc5wIQFOYsPBkYU",
+	"0uH7DDoLKlWEFFUF+rQPNPpkGQs+TMkYvYM7kWYb0QlB/GhOWe2WpX64mXmbggL7S4Fmae0QQXIYg9bW",
+	"g9Caj2Rdo1Q0szT4LEHjN+Zxljoy6UnKXP7Lf9nKtv7lh0aHkeVYvOFIbqoI8L4iIWDSW7f1ZC0WJ4r2",
+	"61vnG0Ti+Vrj9t9o2Uy0ma/zcYUUss7X07J54Zy4al6Opet01V2zzatufz0nhavuVvV1tUfnz1XTKYqT",
+	"Ftc9zIsfmh/64pI0BdAmm+EaR4fUr2YRULXytIwIqS0fCBDdnsmEScqHgTaGurLEs2Ae2Dj+L7khtxff",
+	"LSzJSWqom8esryy8AZ3pnTL8xinazM0JOzkt3cMLodwtui1t4tk54I0sYm6mqkOuj+Ad4T2wOrxAPwtK",
+	"GuJB/ePvlAnPUT9Cz2OcWLMdfw1Aj+uhHTaUgRcwz3CkPumQE/3BCLRt6/P4cRWPY0XJQ5TAjkOVmPhH",
+	"XEjwNbFBNlsXeCyR6JZk0IR3XvbxqjyEuvMjzBsy0l2DJk0SU+zp+v0LBMuvS1xWqdyn++lJv9/tfrZ7",
+	"//7evf3P9rv37+9e52OxIYw+7t3+EucWK75bzcKjqlQAlpBUMImYQlS6kWe8xMU8kNA7D2+9mwQ67tMF",
+	"enQ3OsrzS7aw21Io77g+6TQliP0rfepq53bJzTEt3SMhig+QiRAXYlPOhijve0lEuDr2ojHGAnYUHVld",
+	"7bvr0836kd80d+E8j7fhUnlVeRo98em1PuFoUZorlhqnl4wUGwulm8cSIp03FHZ9CGPhsxxmbBITHwzE",
+	"vHYKPm3CPVoDosMXhhSNiNbRDMmxSbCH7/F6qe4fhK9XqE6e1TKY1pEorslLMLdcsW8JybkmXcBcN1MX",
+	"ftI0xlRAa9/NUOFRLEy/T3wVb6sHN3Gnv43Jf1fM+QQB32nmZ2kubDugx0JKJtCO5p3la9W4KtNSfCX1",
+	"zWwa/gqxK3JIWibVBaQu9eokORYbcuDhsl+UTnEMiz5H0NVIhHe39yy75Aa07hlB3IRXVAGpdpq1o0He",
+	"vCaawhldwjxugogd5TkcRCyXJZPavFxqY1R1M1VwP5Epoom03SSX1UaQRR5yQrrby259PaoPQRpc1ka+",
+	"puC0Webjk6nCCIumTRoaXBIu4oRy6CJV62+YLpVC8/wNEdmBvViXPE4hH/qYO7DdbWXV7+PTr5A83jRr",
+	"1/oetZWH+KZlNsjzpZeGjb7Ddbd5XNTJNAmIarBck691ANFYQjIXwDZs3BiwrsU8khu5bqxvUK6hgqw1",
+	"rFNf4trwxM3SgNVSdsUVjOelES8o7X61PlmV4Hs1LzxVQYL/kLnTF9Vq+I5NhKnAwLN3JzTrHuamVVt/",
+	"ArH1D4Ab/p4z6W0a+7YaVnchRd2S2bspUtQNrucPSbBT+ruqVAzvfxfiGjGw5nWxC5QOJnuNYFio2X8a",
+	"616HWh+jC6VndZaT7Ts2vrQE/zrmhegpNBRjYNfOxe5O+GQ7lm932EPwyYzJA3is+46t7JRoBI+JK1ge",
+	"24IAONgh+YFXZoXSFGU290w64jswNEUUZMYGTZhUjDCEJ9LMGHc9lSf7MScbbSzm3TKghI9KwYKiICMp",
+	"9hFj56qco1NVCmsXAQulq/AJ66FuG2zmJL3ZGoHcc7fjIuEWyplZSrhx9BjpuzYJD9dpwz6+t1nkdLxq",
+	"V1ys1YCWkqQY0vueb8RNg4fTcMdG6W8DRfGC6OVVoGuGA1ec3e3ZcYqlaUh3l3Gs6ySYKpYo+hN7WZz9",
+	"Neq7nuFrApdPRrdyOt8xp9H7ResvzKwfnFYacsWaGdBqJ0zi2eKCwwimVAW3l22fWg9hnm+aBHataDXy",
+	"v7n1IDiqNhrAVx41+OYGUZfvnl0pW5YKRPEy3r53qjB5uE4x4MGbiKOfE+ql4G0ee5Q3ZaH0NxVK2pQy",
+	"bK6xqGJK0/3cJLw02m7Im6oh+Aqfg13eontSiPmUiuW1oriGeRvjOiiNQBIxmqernR9SIk1tmBLSjUhV",
+	"d0vbarFP6+2rd0lsscDi3cCGgJycDNnYbLNPAbFsMRcZXS/oOmn44LVwwCLNAthi3bPVstbj4692jo+/",
+	"YjGUwDNg97s//e1/3t3tsl9n4Ge2EzjbKiCnfUh7k0NiKvSRtVng8ag3zMpg7EBHzQj4iGyjJLMn+KZW",
+	"uGGkxj6s8qXhG6V7Sk8EaFNrDsHordsiQHxYxFI4kbfRW67U2JRWIqu15LTusCPsMna1p3a7vi2KTeKx",
+	"LHzDjecgAd5+oMdjrdgEae+AVLoPXxyxvW638/k2KtTokNo2Mbwc4/YGI5YgNwCZ9nQAFgqiOcPc5k3u",
+	"dmFcDYomXe0NdinRMA+wtYhQNlUwDFGEXUAzgFlZpbNhxM0K6GrHrc04zaUMrLGYexui88QR13rSdMZq",
+	"7NrN0n42ZVGrbB1CBSnl/eixV+UFut6vZW5EjbgOdV/4c34h0KseXXEJ4gNRF24My3ITPLnUuWa9i5c4",
+	"6sY7N6DHzodqDhCB0OhxZzXn+3IRBOedkvCvyTQvwad5iX7uMQMYfoW8wYvnpy9Rasd27c73sni7U31p",
+	"8ywiuQRkl1a17gM9LQt0Rj8TPvMQ4iUv4r4ATs1IMIoU8XDaRS0N9SHL56A3YtjD7IYIMU3mc08cZYH+",
+	"/qRtQHicoRCBC5K37CjTmCp3JdnzKYdvD9Tm1lFprktWmcavvA+HLTow15dLYwtuT3q8dd+utdR7gfE7",
+	"EQNNRoxFFJ+b5A5KXQmvMULSOnjvPU25AWmRQ9AM1rK+eTJwzfUGXx2/eoqB3UEp6S+wO3aOHFOUBaX2",
+	"yWuv0B20Nj0+32NEtUIuTKrrHZdu5ndW116lGoX1gIg2gTiaP/Ep6FHdyW7uZDas/trpLVI26c9R67bq",
+	"UDYiO26kaKPW7c3sJJuaFObzVr43GMvTgZ6IWtDyVNmDKtwbp+YANng0xR34tB4eunRNgz82dDJVNoSC",
+	"0wNq4ITqx0doDbMnoQ18dkQNQX/rJHNjb5PAL0xKjtlmieCRKcRX3YAgQdmvbxzSsyJJf5ovusnhuFzf",
+	"WydWtRIJZSGKGxiT9zGyJXdj8IBfnAlKmN8YBX3NLKXp+G8Q3IRUYDFpdczgX6t/s8klFcEKR29/Hdbi",
+	"iH0pfOHF8kPWrXtVLM6C0m4zxOpsy+tKNuyeL7Vh965bwqV8ZeQnm2OkY1h0YCKRNfpmgxzlC97pYVqq",
+	"9QuzG49LVtGERqpapUJsFFv+9e/CzFIOydbJXtuHh7Inzx+w31YJK5HHefL89+y3VUpJwBiFoKa+LXJK",
+	"b3T6oHL0rZCEfHp7TFjBWojr6cAvs6dQYVoEY6pHZWkfYh5qYV0f7YZUvd356e//K6WjDZVD3RiRSl8v",
+	"Yr5koVO1pAtMjkFeth7epSUgFqxXwTXE/I0hOJtKiqKNQAD0uhpzUiDrqWoWqm7qIfKTvgeHPuMkCbxB",
+	"O3nAqrlMMAHMVGGcbT6WwM/5uC2L4UVjbYSPKqviuEQJ87owf/Xwfmgf9o5vEJHfa9/TnRsGuu7VGnfb",
+	"EdVfPfgCWjotas+eYJOUULn+5sQ3fUrRQqfyXHE3NWJziGEnlAMHhXBrLs//ZfAiv4O5u9Aq70sz62RZ",
+	"4hqgl+aI2yUZtUJzdsT37n262Nrpl0fbe/c+Za2RuKrwurjSCkG4EDxED5POoD+qPFeNMRB1z/clt946",
+	"IuTy3ANjruRQWLdEgffCSOW8biNDXDE0E716eUwmfw2jchJe8hCmPZqOuUIoAEq+CzEHdqQvg26kUZ3g",
+	"r4YKziawfejr7REqUNKRZ7KUrjkx1oS6uzxBw0qdAqxHXxar3tLzhve0ho0C8KuXx+uLtLGePs7tEudI",
+	"PqagVK5cMNmV/OyOJa/yP6KFAdAw7969e78yZMDzO5ie1IoIqkWYF0SntPKJ5KViVVJs1NGh8R2ev3p5",
+	"fOBxMKBIbf8wXgXu88K259PPQjaR7/ffbtMfe9UfL8MfBwt/tP76zR9+s/3NwvN2Y/4R6H0fxtm4SDAT",
+	"heGXvFylXApfqY0UyFWps9n1bLQstup7Kt1/WcydUNvP1UFJt9vilklnYYFiZQsUc54GLOExiDrfIAeI",
+	"DWU3EL5DkWtdL5LKV/b73UNf1g/R2TgdyFr0r5HcrZlHJFtFCOuZTq4NT4tbM7Rd9b9xBRKt9W0lrLg+",
+	"lnoRig84kA/oElQp9KjlRY3cakt93TvuA3gGLUzqNZE+ycf/k7iuZNHypIGhvJSWvFni1vqg+Oq3tcGe",
+	"es/XjX2xN4l6oqttedzT6tNeLHtB+Qo2A+C5iW1YXE045rSYqoEwjkvlZms2R26/dqPmgtZqHe/ZsHy/",
+	"gzIr6Vypm+FfJhUK/yb5bGrI/Q3qnuAKvdHIYyHQFCwz/CHcyvxS1LfhtIU28PYO/lPpHaAI6ZZExMBK",
+	"xr+mmdxO0RTf7CwR8wisuUFuHz7Jx497xeKCZSnAKjXOJG2TZIi1HVzfLOubepr2ao3X8ViPMcqA4CIH",
+	"r/tWVxYtjmlHCd8Hd/maqLC+zpPQylYWn51CI8nvJ1RvQ59vkoc9DZnYyCU+NHp9TvbYxDrzfsOom4o2",
+	"r3erp1fdwrV+Eu5hH+4QTjx414W/q2gM5yMgQhTFHdtJr4RNuJuFu+KW3DiX3Q0NTkEV8bljWSjHknLs",
+	"lc9WOtfdG0BG/mz3zi3sEZys6rT7DHKYhaOK07GstUARMNV6u5PcdvNZHN/X7Zc6Fr6vu3D93Z5eUNfO",
+	"QO3Cum7X1rLk8Ax1UIIXwPK9whv19Q32argC13S7g6/fE2GJd+7KeSAHu8MqQ4BPJDHfyq05i6+84JOT",
+	"3nQJvPR4gHPIEEYI5sSVS9LZHHpET2d0Ca44hg+cMECpKKU1P8tYKZV3doPFRlxmfi6YEW5q1Fx+4ehi",
+	"uyTB8Le93lW3uw3//Rz+8wX85xj+8xAe7j7q9a4+e7QkQ/JLEC5uGMV8AwngJgABS8xxyQeJmASu8Xqq",
+	"CuZ0jGzHbaWYT6lXQemsb3Ndqga3Az3ZRB8Hnzc1gH1qHqcVAyNch52O9KViaITTaiAOmXRswJX3+0TQ",
+	"ffRxXtOTilrMAkioH8i1GYxxv9yQAQL/9T5ayYwul5CHWmJdut5LOYChjrQcCASfthahhmnBwe0dzIYY",
+	"YFL5wdC5Sl1fWCuoHfb39pA9AJIjXbvDHkfwcvTHpWIwvx42gxvhLVuhirMZ2V/11GyLmbCUy2cx9NQK",
+	"ZxkN3Ipy2KdWlnnmb7TjpQeFwvwJ0FEcvd/sBaPYhFZVhp1JTBbU7rBI4/FjXw0yTMkEosJBUsIPXBW4",
+	"AZITxKSN07HfvesbRpVO0tM7FjVD2KX97v7yr8xUMW1o7jvsieAXoroT5g4va2GHMr9oWciE2e68a1jv",
+	"3b1NkzVXxOEWODbISq8Nu8TsabDfplZUxO0QrX8quEyTO7vX1vFpIR1zhssSb2B9qURz2vtxVSGDLDvq",
+	"HDbSAcvJ4uTzO6F2OiR4AmfyarEWM0B1euoBWeYP5hLq13RYYS/QrsurvZb3FPWHl2hxE6UfNnXJ41KF",
+	"XWen5B3eUwv3ZHZ7FPr28nfXKWwjUTVC3aZi/4xbUfq8EitxwqDdL8LHN8RNqgNDLKrL0EFmTcirJ/Rx",
+	"6hjVkFfQafZaiAlmnpRE6grybQKaCGOC9EWJxxELE5IF2h7IPycetL0ZOxBTna01wS/i1yGh2/rbkSqA",
+	"Mk39cGaqBoFzm7svzFRUOvpLqQp9yTBIbkx5Lrhiu1m32w0zAgQaxD78XpeFsM5/gBgTMMfN19ZFgHrb",
+	"BHsjRYi7Niq8hkYQ1XDVIsRZTXZ+3Hi1DqZTlriHrfIgrp+Rd0CzeydkujFM9s0CC5Y479mGTXPqIzuD",
+	"4aYQFxJnjrUU++nv/4HtLkv4FU/YDSPNrCjFksD4kPs5tBCPsMDwTW3FGiwvzh8OGiYkhcRL2166/i/S",
+	"A++d0KCxUqPHwbLAtbhFGfd0iYI4bYrCFiqBtTEDMXFz7mTZlunb76acUhWVel0Hs3rHT30r9aePkzbr",
+	"bxKvsoVXp7E39RdPNLmgJUTrAwATbYrmLYDiNxPNmovbtAybLJYgpF1pQ4jlMOJChiREKTUdS4qIxo9t",
+	"exnT309v68UPboZGtVz/EvfkHRv0L03BpJSuRAm4SX2KpKF0GRz1uFFvGla6KVbW/B3TnEnVBvjS+G3A",
+	"CU3WbG0BYQ6Dc3VMcxJ/VAs3CiaimAeuwvWqdmF9D9TG2kSPcBunh2M6lcWiexjfHh5tP/rm+8/fbqc/",
+	"9zf5ubv3tlFn9KoxWuyIYbwY+u4OdBFT9I7Pd55AGNjU//uHyWT8TT6n4/Jy1xIN1/9r+//9zfe72d0l",
+	"/fmKG8nVQECewnLThJmYSXF3x367l5MD9IWvjQ2napD600ePidMHBwyUhiyf6Eth8qynbOuqDXHD3R9/",
+	"GPOr1lXGrvpjqdrfDnZJsMafWI0d87KsOWBTzG5P1RwPDn0TsCu4Aa9k1vLEBVQUoLLf2e10O9122jz7",
+	"DRvs/vjDVSPYwLr5SQa7a364JCxk7ngEwPnuFlbdtKm/qijCXGYJBCD2WBRqlsB8Ec6EJ03ewWRpPHR6",
+	"3064tZhMRa5r+fS9e0EF/a9HWJ76HsMsPsR9txxf4Cb+XO8a4r9WDsnl8UZVfsLmfM2/foAhFN0ff2gN",
+	"Uf8DXKiPkGjv+D9ueA1hhU0wfI1JoVddk8xo7RIQaKITN+zW5nlJrrlE4+5cw7cFZKbmlYBr9s2vH7wh",
+	"bWalAg2Z3LzCM8CzrukCsip+7PoIsWvn8tYCzSsM7gWO0WeNxKmrAHQwIZv1GBVrKeQTLsJTzOsd0sIm",
+	"Xgx3q5+rdGWTGDl/MBOo8Dr/sqZfSrrHPhwgrtf5xuw7jYLjGC4N/2UIi5+Lnz8TmAoFblXyqmswICZy",
+	"88UcuV/38C0seq2ixeFco5ZYONeLV6dU0kmIsAccKEIEGWjlpJpKdZ6z1jE8Tf0D0h6lN6aviHaiL7/+",
+	"1RmrfByrqW2YpMq5cd3AV+gmGykd9vqamvraXiMh1JvYYGlvBeB3CYxEVPNcciDf3E43g7RfjVj0zIcx",
+	"1j7LGFkMWDe6GVeYEiA53BTRcEnqt+4KpvXGt+YHdU9e5w4IHorJqjftq68xoPKYq0IWIZHYBnsKsHPF",
+	"EkQfHIcIoZqDkdZ2Gf4YaexWVuMjW9nUiiU65zG/8tGXFCUKQTlmicKj5OZcWMfwk8oe5XjpQ0wxWgtr",
+	"Y4ShNlUFKoGkZYMwWyn751HDlHaJeHETzax2ojkZMa8axqbsazmZkJxDlzfmIj5kYjxxs9SNvskANh33",
+	"+ZntN83Pn/7bm1+fPHwTZgX43O0qFXqkEHaB+W3q3Q1nIUYaX3dIvo4fzh+SqoracJfuk7gLs7it/Wos",
+	"PzeNIfdPBLdum7Sz1m8n2wF9wtW33c69nP30t/8b/Jp9u5f717VgC2CieU+hGoEYkHloHdQter1D66gc",
+	"C1lwJhzjZSdjf9npqeOR0WPu9LnpsC/YZ5/ts9Zet7vXZnu799qdoNoIfYMGd3dAXfDjP5E7N+RDX9B4",
+	"JOqMK1Bh0DZnfGC0tXRWLHOalfq8hb966vRBO2LswePaMNqZz1cG46XyED95qdjpg0MfBMl7qtpWehiI",
+	"CdqkcONRUGzUmvgTy1N/CwAyz+Nu6GtcJ9uZDwf3s287oRFPsSg+PtncIeAz6mzsdAx942foUC1YcP5m",
+	"whhtAnp7Ty09SYyPNZoqtcXoUAJNUrpGgMbaCAiO54qNeDlsIlod9hCng8RQAlFAT5PqbFomVZyOfvUY",
+	"0ORKqxcieIbyCiNLbBX8D6AFuDn7etgfC65y1oIFIKUUG4PCzZK36AH7ipvWDLbNv/7dj//04w9v/q8f",
+	"3nzb2vvTP7cz9qd/pmlBWwcMp1S0bxhsG61YqeDzKsN6YEthTmEVeqpav4xJJwxOK7xinAXIAWYE3BsJ",
+	"Nl6YmD/9MyHojfRlIN/COjnGWqRiudKKBpW3O+wRZuWeH6Y/Sj0VzhKe5KqnsLmlo20dtvjpgzqWgKJY",
+	"Uk8f6C//ew//ncXnM/+bnlv810MR1JZkTU48UrFn1IX4+7G6OP3OuL+ae7bwe6+h0H+Ye7bwe6FQ7YFH",
+	"Poi/X8C4ng+f4qhSyvt8EpnzjZCDAlWodjTzNCHz5CSI60NZlk0QoCQ3W0BbWCPYNuCHvM226jSnyQY7",
+	"b6KsF8hqTa+8l/zs3ASJeNUUgb/XUIqyqBx0K3dfP2/vdcLmXG0FwpYE2t18HSghCvKBCxef0+xMLLtc",
+	"WlwFJziifqGU0s6XBAi3c1GAlh0/pl7UgURYnoz6gFHdNFfIVsHHSAwoS0eHeW8pdveAcbgDfWTVpa6q",
+	"hItNK8EKcW4E9BnKClFAkg9YgPv32K+ZQdBMO+HKwhDIIwzvJ1itz7rt6CRVyUmJeLSXNW3KxY0Wo/1v",
+	"Jo5uFsT9fmKxV5a8PjLb17x4DNF3YTA10s1OYSQ04jPBjTBHUzda3Mc5PNZG/hE5owP2BX5LgvEAfdyC",
+	"Vx1DZzR7UHOVy1juVUUI8AbGp7zm5wpfoHtkfsisEHRLUUYdqcEHL7/aDqPdJqc0D3iDS4GSFnapEiZG",
+	"zk223r5Fc/VQLw4J2weXLGEIS9nWMr1PFTJGJT/TxhtvEq1TZI0yYDNtT/Ha64XcVhmZfiihi2c4Uw6Q",
+	"8cFATBxXAwGcdSkHM0oqYwXMUpAuM2K2saqMTUrtbObRgFOUXosnb6peK30Jt8bvj0L2V6iSq5rjZU/1",
+	"1CefEGNGixTAc7kjLrfzySfsKPaPgYTpU/mnY0FT4FCeT40o2ACW3UgeADa5iThIlsGxVEQ9JtOzUtqR",
+	"KNj5VBYcXcSxrmreaXJgbM6rYwg59By4VO83DE88Q3j6/AVSsZ6aGDEQhcA6gzZVCVGEuUC2/jufFLgI",
+	"bps+eY9XtxKWfU/RgvosP36WKxnHiIngwb8ZGLOgKstxdn/1K3as1YVQ+KyntgkJiK4pH4JuBLOKvxb9",
+	"Abb6UoanEcillZOcesCihisHAs8YLy9xwYx0LsK0EJsprvjAlTNm5VXM0MFLVshz3LWMtfK97t6n2927",
+	"2929l93PD7rdg263Qzqpv87bB+yFtu7ciNPfPwmnZCxBokLgGJsxq6Eautfwg8KDyNgKNWYIcrj37y4s",
+	"SuyxZxwvAVk6YTpQ0xEVt0I5dBInv+78pYdg/escKixR9oSpYq04QdYDz9/rfNo+xHlhpeCTiHGT7909",
+	"uHf/4NNu3k5iEHyfcRdF3/ADdLdXfIwJCpg/frBciI1zpotZxva7XZZ/NxVmdgCLmNM7fFA5rHRguSsF",
+	"G9KUME0jvDNbQGqCj2dGDsMA128EA5sZI3pvO+xEk6c/nN/JRKhiG8XMACYJTi+0zYFyUNZ2pAMsJtqm",
+	"WkmLQcYwf4Valssi3wHc/5x86KFIwR0/I5uDnlhMe8XY3rf37rJttgsr75d9UEqhXMb+kl/wU6SwTCpC",
+	"fcv8kruRGIclxymBRFIwa0gkZSH4AXjCUDIO7hddWpYjd5DHxA4eNqvCv4cuwXeV1Sd8bDVQBGANU1Wx",
+	"r7TK3RWqVn4bQxYRHn30I63EpFf422t6gRBxnFUq1WYjXJWqS9zlONRnON90modSwcgeP3z4cPuze/uM",
+	"NE62QxTB78oBN2bGnvFnCJOssMzM72hy4sIlKrQgfZ64khZ7Te4F+LLmTxDIdQYsJatrzChVQ3AsNlq7",
+	"NvYeVGB50IBwPI9SiRJH5DkqRvxEODXMXzh0Uixr5U3s1gFDditv42k/iYAeviqYJJ8nggN7X5a40VCT",
+	"QLoMmL8BoRehdwW2FnY5XpcGelvYsJGlZYUe0LUe54x4gTNx6HevZXakp1QRRc3Ic6WNCINxIzFjhcay",
+	"MMrMpxIpuROGeTh+y3hR+BK09Ejc9TDhLGwWeAKb+TvLZkE7hTd+SP1hBO6kinYcsF3mNPt0nx2dHj9+",
+	"zErhnDA28+ScCGQHWKk+/OcA/rOdZzQkblBM8soHKgr7C8uyFnG0LK9IFegUXimJUNpQsw8OhNqS+EBu",
+	"IiZ/uOvAAmZ76oiV0jq/G7li50Zfxp1GcTGt/C8epjkEoMPhib+x8zZmysN1Reo74ecwc6A0kopRdrDZ",
+	"AUy2oV154AWbnLXgW2blH8UhMZTYITSg1uRBnwYIxY02HjOYyMHUWG08huMECIKeWmwe2FElrlzff1KL",
+	"2aOrwlgklvB1O0tUchhJgpedDREx+DF+eUijoBPhg1KcGNus3ly1WM/ElTumh23q9Ijb/lgbCE5h1Xdf",
+	"cvsUHrY77HdCTMJMxf3gx/rbWiuXI1niDqwqZRiqMBWQrwbnknaTYhi9kCcL2aYjiMWTWg9QJQ/6UZx/",
+	"n4PnXBwGUtrKa2vvWRvcwf5Io5LMwkRrNtFlSXwktIEn7ii8lpbpCf8OPF4rj+b8BT8XYcYOcfe4kd9e",
+	"ciBYIZFmEgW3U4HpfPAvkrgpBMwvIKbx2e92cd/jpqdtHd1MpAn5H1vcIz+j1D6XGQl2c/BImc+GhPx6",
+	"xaxnidBg20DXMf99KbJ4svB8YJd+X+dEoLJKpEop4aCEU5ycZFpX4G8CC0RxeZ7bWQilippyopmREoDQ",
+	"KJTzoyHqhrJbT5G8AaudM6OnTngtyAaC5pEPrsJAZIGKh54KoKnUzgF05A39YG9wCd+wc8OVs+xNT73Z",
+	"3t6O/4cPU5mVvanFLr5JwhVhIET4PbEmNodewu2a0cfpWiba9JDiqs18o6lozN6wJ4+fnhJnZvw2eEP1",
+	"Bx7RC36JwJf5nlRbysWcJXiyssT/CzhybQbCN18XxNkbEBet48NhY7PzWxI0bgSKx6JL+SHzqL+pMc6z",
+	"bvX9TT0gyZ+9qQfSwrCRwUQuDpqfBimPekGsMtTRUw9rCgOkTkQtaCPQNQTVk0xLNgRx5YSCi7unGvQL",
+	"Bwvhup98AgyHVuKTT7x5Y4xGoGJMFtUwEryyoAuiiLHAZBAydEycT+hjI3MDXwfJuhROYKrYnno+Eero",
+	"xWMW1DUByiyEKXJ/hKqRA+9WaXIO2B++gQw6oZ67nS75wll/KGiiUJCA0/EcCu3h7EKRxw9AclVi4LyZ",
+	"2wLbdhSiBDI25iVIpbC/AveHu+BCQ36yGHK73909JOZVFknkrp460Jz4maIO4dd3OyzfGQleutEfgSnY",
+	"gX04oz/Hwhk5sF4e3NETofhEdmZ8XOY9hQK+0iHkNg8ThxPRDoTpIRq+AhVCMxgupEJx+/7+vc/YxOiz",
+	"UoyBi52QfldqteOf/uZvLKYJoQu2p/IX9DzYYaSioUrQbmcsxxZs7oV9Um4NhwJDm4lfRA6GkxgA4iU9",
+	"hYsEevTp/e4uvcMIFdhCAcyaZFHwWsfLNuZQtjt7O/WsJqyV97Z6W3kAb8WLA8u3D6n149Ov2ECUJTSb",
+	"75RSCbvjiT3+I/yvASRIDIQYuJMcK9zdBmmxYJPRzCLgMdSA/BN0bSR4IXCa8fFuO/ja+4Y+2wmsT+67",
+	"U93b0B9qOsT3Ll5CoTq6o4gFzFg+4W50IAtig3PqxMHjQown2gk1mG3/TsyQySPHCS8xjaWlDJGkZ0+n",
+	"HisirZa0wZnBEIdtPT+147fa03A8mJ0px68ydmnQkjqb+Hgbz6Il8R/cCLh6D2nzhIh2MOCV5bav7QxY",
+	"aCP4a8s4RfGHDNyekWlxFcSM1FoaLv2egjOXUYw6HVv6AlgRI5AHkNUcsddihlLh/t4e3Lv3ul3SEQLd",
+	"6KleTFNFR6m3FfHVcs9q9mWRH3oj6dQKdg4dcTqV2UoNW/iZJpldBgG/kvyxokRJgzMc9ZYkRgZeIP+r",
+	"bS+kbj+GIATO0unTyiuYgjswioBItV9jiFDQ2qFbY6nPe+jxBzKP98dEoW63s9vpshYuhFTnBKGCVbFC",
+	"TARyglp5Cj0Tro2HfEHCIU4fZZWEU0XxMqdAxcsojSDQtlaVyg2KFUhBO2xemmJc2UtU7kQOHnnkW2AM",
+	"UbxAmRiDzTzf18bqaUmCEnBjrSRYipBe8AKDuZAHp/ysSipBbUR9z9msmiPSFQWFWuSEahxHInMvZqsP",
+	"asO0xB3S5LBW2ICkx6T91k7arlRKXkdCWU89r4LSTUgFQYc8ERaCUo21UDotyO7PmFDIqEW/9aCR85MA",
+	"ho1OKQcCiCZ05WjCByOxvdfpxhx1RmCrpEh/8vj44bPTh2Q58QXBMkJoEFtV8a1sa2pKb0WxBzs7l5eX",
+	"HY6vO9qc7/iydsfXiGUQgduVom5coQgy67N6d3bpQ39tbx1s3e10O3cpFmyEdqhw8cPf56IpaMtv6z2I",
+	"8wYplQ6Q0QNhLd7jpQQ8jmcoUQRmoEP5NmiXPy62Drb+QrgvfVNzbo973W6SXgD+TJmAv/H2OqLd19kI",
+	"qQmyRM2NA7sJs3Gv211WTewX5elTvETmpWbE2zr4wzfoRDbmZgYeXqB4Fxj44zCp4x+qkdutb6BoYKOW",
+	"TvILg/pTMbUEFSWuwu5lZIeYn99D+kQw6YifBIkPGDJ3qc1rXCLqhDaoRbAeDGNhTZ76nl27JtCvnUnJ",
+	"5dxqzBtKFybet/A+pj6ZtnEcx9JFSJnXpSsB/qCBf4+KzOTiBPX22VSCoId2+jW2va9us20fOrnBRKdd",
+	"B9EjdD9j/+Ho6ZP3Mf8vU3XvqqkniWJNGiNUjfzGizXYHj0XJ2NukYzd697tqcrJdX5VWD7WBRHtHLqC",
+	"tpw8IWexLYnWZbys0GATE2MfeNsKN34rFME/KIBJUSexJ638RDgz28acvHmbTZWTZeVRDzVbIKFjjXYC",
+	"4m8TjrKnlHZyIKx3GBPlsAM9x+1h80TgJk2If5ExCQarWeYd4kgrVvLzJWf/hFblPZLjE/RVEdY27Vds",
+	"njlN83nj/Qml7l5f6pSm9pXiF1ySv/GqrV31fMW2vtjdQeXM0o39ySfooHHwyScLmh9tggIDGeAjqIcZ",
+	"fWkzpsiDCHXVGeOOjbV1laIdXHTAb5ds6DkjdAoQWlDtEmzrhSwOsEKf9CbwKP41clbeyEkbmRR+KvkG",
+	"HBpw48XkGV4R4J/IIrSOXD497akWyYY+D3E4trJop6Z24E/reVE0KHuVME279VRwMxjhJKXALhbBtOBK",
+	"2kJJNKDVHWzRCLayNTeq9y16mzXXVk8fUlWZOBF9ut/gNLSyNlksq2uv2127MtwV8xU1+nI1ZAAGfLH3",
+	"dvhxtZ7opXeVQZiTt9nW/jqn/gteBN8yLLJ7fZFXinv9tiio0Bp04pE2Z7IoBHqa7e/dv77ES62fcjXz",
+	"vbM/Ex2LlIuOyjzkG9wkyck/m/nTmpA3wiYFD7YF9WzEsFjMEhoIIb1eixLWvdOuo4yUOHSOKGLqCRLV",
+	"atIgmpq9qs+rRRQ7m/UUuFwkLzvskTcMDvT4TCrvyX/07MEhy4GzQ2ZBKh9nRlTP6dyn2INnGQFKalXv",
+	"QYeB2ct6HJ9K3TyITkmYeB8UOWS73QoK8mTCSMOUMFftAwzrYQ3m0Z5KjX45kPloTm20hR4SSI2oLII9",
+	"VTc7EmoNjrlWNdgTO5XVD/1HsAlkvXrKN1CZ6hboOAyZFnQ9Ml5D9lqP7KQBdsuIZoURdnt1xpTOt1dl",
+	"RIVZr8oaxM+yOiuAmfUqjRg7UGH9TD/kppTCuvoByKpjg1g6DX2AA1brwDrxpIvtQzblxdbF1TWtO30L",
+	"bb8I3g7LWlm8lyMq2L1u4nC9d+0dnTUvUHV6dipD+9Z7vdFxg8ERbrrSwckM9aoRH/fj5X7rl/sxYYpI",
+	"CzrG5O72t++yu3u9hN/1q3zne1m8fQ/3OYbxkrVhKB1AK6NSJXo5azUQiRePUOfSuy8WFK5GT/pez5ln",
+	"wZ2UvCKMCDUtkXpxChdvn2uOGJZ6/OADnK9l7DLhHv/Cj1R3//oSz7R7hJgkf6Zn8IiWgraodJZiBXzI",
+	"AXqrBFzR9306b037EAx7PncYeeZSiFDlyRIEeTNVWcB/RXbcu0+k0oa0qdv0qpO4RKb/JRzH6wRYnCb7",
+	"8Uj+Ao5ksvXQUWfgiXw4gf4wvZNsS0cueqTjdpto+04Hj8CQLOMg31KvM4pRjsHLiUdBgM6KQeTayHPE",
+	"UAkOiW4UrsoqhXkpFfkHMYlG+DxU09dD8P5wmMrRVxTv0QCFBKfeOvA/kCowHpAfgGqf60bMPw8l4i8Q",
+	"GRF/OcTf+FDMlvBkB+vqKYQ3QBgirUTUdzsBOk/ydkFMGGT3vXUM9QBtT4Di9Hj3kHxCwr7PqZAfhsgZ",
+	"8t4LoI3oK+olwp46F86yENwRQ66ky6KbRRht5VOKCk1YAoTP5ran7HQijBU4eNR1ha6BmdbOV1NzXfRz",
+	"fACGCA9eWHtPDvPYmvbO8lU/vCTE+BD9llxPke2Bo/oAQ3eViBjD7HmA845Z2pHS0xEacanQmfzM9x9c",
+	"hve797OeQi+Y3OOR2b4v7f1wThBqtbW/t5eR99UZZZoILFzloRVvUKjvMMas9RR1//Hxl+zpbhfgKvb2",
+	"2lnIvV2FqkH4mUdRg3vIu3ygi03f76r8gPpAOw6DN+iSxqdxi6EHsxIBYSPk/0ffqNzvY9uPUS59JS7B",
+	"ZdGxUnAbtN9YxgeJ+HPAS3g8o3oAayS86QdXjPwgavj3IGBXDytDETfVOUYPhVAtnIISDlB9EKELAz1V",
+	"zjIfHxyqavteSJ/Dy/bB/yYdRi1IMvkwp+mjGDa/SuBPkoUlauO+Zjz0gFoC/VgfA5D7QhW2r4QofDbw",
+	"/MAPBrpbIwMwAVCQeU82iD7zjiDQvZE8H8FvWk/FDdow4A02BGPB0tDgIfpzQSXe3Zn64nuQYaANphfz",
+	"QG/Bz/NyNKNAhHOhhOEYhZH7UpXHDk5yu4m1IaL+MFwUGzM3icPc7wSAC27IDuGd/IUuZrfGCcWxRP6l",
+	"HhHt85zMcWK7H0YwSgElyeUQ23+iB0uAx15wNwrnLBTOWD530yMAcX2I2Spz/L8xLrC7Bhd4rNWw9ADc",
+	"+7tr9OkFn5WaFy+1fsLNuaBy99aZADudTLRxongqCslfzigFy/7e3jqFvbcSMI4PlQNr758pn/tw3tPf",
+	"O8ihBMoDGxn2dML/fje4Dd4XYhI6E3W+lsR5A60QhqiW2qENAxuzF+e5H9mLZ3/B5Jifi1XS5ItSuxfP",
+	"/uJ9ypPYhx0/Cw1q5DOpOOnm1nHYwVF+lCB/9pMFGycRHTNGu+i9a3DCLn8PR+q0ioGKjGMEjxlz8xow",
+	"awLYRcxMkQWIuaEsBCJknHFVkPSDYhEm/WATrkSJ2cEuScLBYxFdwjn5MaKHak9RYFuoP6J0JAggULu3",
+	"TF13vE+/+gDH216c/+bqRh54Hw/0L/RAn371YQ50FSe4noKodqjnz/DjBbgZGBM56IN7TxXAnuDc+AGj",
+	"cEiegLySJyn+ik5zdcopZcsFLxl3LK+e55W8h/JYkA7bHbYQPNJhL6qxE7bAPHINV7MA74KhNiMPSOIy",
+	"RMDx8XpQIRixYTI8UTis4eb3lI8rB1GPSFMOKFw2h0iZEMRC6A0lRqtOnZWFqAEHiqKnSGbUhggZ46S6",
+	"77BUxU9YDYgaWOEB+XYwUKen9rv3l8uByaS8I926fbmu6ttGgl33vXSAmlhmWvYKuUmMA87IPdeDY5hC",
+	"mM7WRxnsowz23k3waZwnus8G7K/Uly459GveMSvuFCMSAJnbMDucgMRoE9seoQtGbbi3z0duEbVhldEe",
+	"nM4qOwiF8S03Vng0Vc9kEnS2V+eBJlkp1AGiUZ9oOawLNyIAOFJwbtTXwBY8AAglAjsoIdjUQ4FUOS2s",
+	"9yDwukCou8KNaT0+fb7z+OEx2/2su3evp3787591dnc7e2RHYIWRQ0d03ocW2uAx53XzAbfMTxgFkEnr",
+	"ud+ims1qyljLB14TYhl+BwHMp/AFKhRHhKa7cIucxMUXv2DXhZPaFl3mwoALKy3o6j5yyD83IUs2VuCS",
+	"aecSB0YUgF9GKnDLrsKRtGlTdCbF8BbcGF7GQHuqNuH/vQ7pwSOSeFHL5A91hQl0EBhcr1YLquFKUM1i",
+	"WF2WKOEwWheJQBC0M4KExnoq2NxIIiuo7TvMDrQBeiW+mxLkYk95pDekQFjGOu6kdXKQEYeK9VJKHv+E",
+	"NIEQ/IemVGRssyWYKFmUGrDyaDxUMfFNYLBDjBNEkHA3NYK1FB+LzAccU5RxMM2U/OyOZX/USmQwjxzo",
+	"ulcw1FB1rB66S4x1VsU8babPPUXqqdMvj7YB1tXLK6C0iJneSPqIZmq0GNZM2Ygit0qbcIKb5MWDRx+K",
+	"pPpd/s5KQ39oPtLQn52GosbHSOXgXQ2V9r2EVwSaid/cAh/4VGMq2pT4zztNMKdZ7kGHvH4ipLLNiebR",
+	"SK2PYRh4mkn20khIxaUwMaFPAojLjrBqJFqhHz5LK0n+GLRJOR7JissrWyz4GEQZXQNcATuq6Rco83Sp",
+	"1bkwiyPDMIX7BywgUMKDIaYLBA7ZTY1KWWSOeMJKXxIhtc28GtRzMzbtl2f1pdH8TJqBpSZf6pUoPkr7",
+	"H6X9D+BZOA+39l6dCyOfZW/ADWfX6JIfzrNylx61XzGthGVO63blkjXmSg6FdR4aEC85QQjaWU9h9C7w",
+	"gHXmDx8hB8g8A3hIfGmSNj2kA41MHjm0hTQ9nuUj+n3JQ/TyymCy02rafpHCcezfstgZtH7HQXxk7H4B",
+	"UbRxNZodijfk5pbo+rJ35uCOFMMAfKOVHFR76CAN9QdoeMswZwWexpC1gswyCDU+J+Z1WB7aC9wdj2zc",
+	"HVt9eBh4Qw54gJg0in4LW5HMlItqcctePD99yTwX63VuUKEwLHq0RgESnGx1KVgrtA7Vfse3fSvGY8bR",
+	"22zxjeqp0EFC7R1PrQtQ3ckcEc9JQIawJqKI2j0f6UqO0lHt6R1cCbtg29cSx3TksefCVGdgW9KD15ih",
+	"r6cKiVdjwfgA3Qg9EOOhT24AKkMuS9x9UIq4Zvq0ER1Bnqt/K0xnPHg/k6thbP9aOv2RAf3IgH6Yi+jd",
+	"758VPOdCcuNbdkMitjNtpQo0a/BaQEQHly/j976ay5P8C+T2FhJULyEktYn/yPP9/Eftq2YE8Ub+b4VD",
+	"7Zq+Q+vwfvWsXsvPGXucgKdDtXVo+2QwXso6424wImBYYGXShtqHEZO8pyApULClKFEldjmbsRHHPAT1",
+	"TvkIoJCGJjZMaYiiXdTzgsDjYa69uEiQBEUDf1RiTqd23R4sXUihUMNaPogobT212+3++MMQduGO8vnF",
+	"oYpfP2D4poWv2E9//w/Mv26H7zASHfg1sIuMBGDZ//rBG/bTf/pf5uJiquxhnXSS+06XwsDj/mQAQBTI",
+	"UvZU8J/68R/3uuzXIfaKvTplD18csdOvtz/f/5Q9xdrZ591u90GqRq6v4+FiCBR1C9OiGlngHGUhUren",
+	"arm88HEImQqRu0cVnC9OrdLM6GgbC8pU4EYpz8FRY0xaPRotSPh1lPwYnNZT3MHmJZMNEHs2H6RWq1wb",
+	"79eeaKkR6/IS2PPDudg2b8GyPoHuQkQc3TkddqQSH4am+LwaeQ7uB9QF6aiAsD1FwLzExYPEQeFjNGLQ",
+	"qJB8k1aW9RR8xAPiG65LiIHCznurFvrQwZic4cpSuFhw30gBgu/7zBFeYik9dE8A4yYFN6nsaQCAUIh/",
+	"9JV2/fAOMksEFXwVvwhHPU3EFKeqqiSNAKyqmPOd898CztBQQqgg4FsfYHLpdLETz4qwjZJ4T2izduZw",
+	"VfvJgUHUek6hiEsc8lIy/29AYEqH8zPJTGkXaI6LdZieQKeYnjqgSR8Fqo8C1Qdxe0HdV7NzRJUvZk1m",
+	"LzJO17uJJxludr6vfrwN4pgnou8puioxi+JJJ0gAzHtVj8MIqQy4o8s5eID3lNKX7YOYn95XmUadO/Kl",
+	"RhKOZak5EwPMe6qltFvneiHWDz4O9xP5hhAOIOa+dx5mBE3TiFyPD5GHK5LkrTSqS05XM0wQOZEgi+QZ",
+	"KCtSwAAaWF+qPkLCY/4jhdpHOx2M5u9IG/SnuiyEYVqJDvt6LnU+1Q8R4HQP8nPRH+mp8alVEl5LWl8P",
+	"ZvenCaSVAN5Y4QchqVCH7Xf3QwZZjOQ3Aj0RCctfKvAIKuwqJ5jH6hHUtPlFGDfN1vUoe8vDaDeByFu8",
+	"TcaanLJCWtJDtM/j4lKWuGXobNxtjgH33pGfwlKsAoCqlv6jwuAX4f1TXxU4qtxvy1vVFlx3hdxu2NGR",
+	"ZTlZaZZHN+UZiVKp+q6ahyGYORoul9wThXzheoGji/nIeyrmVlnzxszbPrUXzj5kdIu5qdDPaPA6dK+w",
+	"jYFLz/R8/9Egs99T0WWTfI6WSxUVPXyXgJ+Uqr4neaGpox+jfz5KDx+lh3VI/u+nHHiS2Qrad6thQD6B",
+	"0loywRzDXxI8bgoaRmxqyD52NkN3nmWmlqe+6fdIAKiJVUYSP/6PULK379lWlklK7PpeSWM9/DdL9+8m",
+	"9oyUxUCVLuw/NvAgeHGn7nbYC00pk1E2lPQ3fuyzIM96qor2qsJW5vd8qJokx6vkTWuvuwuIWAJBrE01",
+	"dMSuyxKlLJ3u1Mt5LrStp3xsG/St6npIvOYWz2Ll/kZ0pKdCR30gGDZvvA8yqE/3MOfHy5ERlhTtpRg6",
+	"hn7Pw55KbBI5g1yKCXTunZh626apZqLa3470JQ6hLDE8DVTjpADwaH1GsKmSkNwZxicVMLgk1IILzApF",
+	"69OAiP5uKtb3xAdR734mzsdPTQPRexziGoN2Zm7rHMYtgqjJpG1F8nibGt3l/aNzG8xO5t3Qt8JNlCdX",
+	"3c73sO/+rcFvfeTlfoGR3Hh4IjnLKktjyjNpJW5wG9bZN7+nb4GL82pOsgsSomYK6ZovT/PXSIpRNwaG",
+	"wko1hv+8H5XdEbMTMQCle0LOEhq3huIuwTZryHi0t7v/2f7ndz/d/+xnzHu0nHZWDO1H7d3Pf/yfq7Aa",
+	"Nz/f3g1vw3NNLnHeoTdj0Rs4hGGwFtWLvBfBMReiFI6S/jYKay+oI+9TWSOMXe3QRp3+KKrd+k6FSfez",
+	"u74L6I3lsuARj4JWYP0xeiBjnA2nZVmLBmItzDtYha+gRNEGlGhd+sTrvIo5aHlkAQ5v2JE512pPFmzE",
+	"7Qgz2a6QJ16EnH6/SHmCevczeWD4qVlyMEPowNZHJvkjk7zpLTkRCk6q30Ob05/aTbnzPRKStzv+zlvP",
+	"VjXHEnsCNeAqie4G+sMkegvCnxGuXxqK6rFpav0OVeTHVOl6vGHIhZSpoApqokcPqPfLCFIDV43DvjFb",
+	"HdKTfvPe7/c/dxLyPwHf6jdfzPR7W0dyqiDWbOMTeVwKbqyPb0OHT/S0rUWyiSrosNEZ5RU2/fE4fTxO",
+	"H/440d5799Pk7Xibe+81B0yhZteroKp0NJVRgjzEY74S8hu3jjuRYQYaSk6FN6ISzGnHS7KTs1ZuxXfg",
+	"MlHP4TWftranmvLWss3S1h6SBwWQhZiUFgoNhShCmp4YFXImziWiAXbYFwKNIPhdNp/hVlrGy0twerPC",
+	"sRY6EjMxnrgZJaCU6BjoDbNWG2ahK1lPoQNKlenW+80RNAE88hm92KUwIqRuYQM9HqN5p9NTj3B2oGv1",
+	"HlkR0Qqximj70WogDkK13IieUtPxmTAEBEhwVeTrh4xK5edvfbvo2MJpXLCmpqd8jApXVG9EuokdRXWa",
+	"ob3EByP/mbQM/FSdUKHppDmqZMCn5Dl5gEFEuAQI0ch08LuwFCzUwe2JUUn+eYcXEGqQ0wsfTEBuTDFS",
+	"oBOihLLl7rf+y/Rt3sag6UY30Vggvko7gREZLs0NVSVtgq7Dcel7CLH4ceqdqpWwS3UuJ1jRQ1zcjaXS",
+	"NGfrrWaX3e2m6WV/5hzwNEWPRHNAQJoy9s8jmd6fo5WDbgqkuHo4F5RVQ7GhJzfzUzHTtR0Pq1DDxYwF",
+	"2nhjPRCdVoJYWKWz8/SG/MMRxlar4IIzEUgnyHw9B0gLNnef5SxFdpwPsDpgnO11dwmAwtbEwoTEYuDc",
+	"NMBGEE0nCfOCl7JgZ1MX4v+oZwOuPOiE9xXQhqLq4P4SlM4qw6RecWkREbLMUCE8BCqKH9k2OS4CZg6p",
+	"0rKgqvOcdgqiVkcrPwA8z54quONVoj83MvpSgX/8DOJIqf9STaaOtfavrtrUSgpRG1K8nYmZ9vA/dN7J",
+	"IeAgmXSC20APDp8a1Tqa02qdqjx8h8HDAKbEv85iusCSn4kS04pyY/Fm7anWQvIzy841k8rpNKqUNou7",
+	"1FQVMCgwHmZHsGS8p2oBpYfhkMii5v4wESb0CmfhV7/6FUuUiz11KoDBSB5t/07MEEFvDD4ZRjgjBazG",
+	"UHTY78SMascjFoIxeoowSPA+tnS9izF2H2CWCdQk5Gvb22cYQxByDCLBuYPOHKATQS0tcksBVemAyrO/",
+	"PH3+zOdxjZPPuGUTbiooUzXQMUaftawG5xEnmJ3wAUUYjgVse8/B+Bkdc+eEaR9SQz11fPpVrSG8x1h1",
+	"D0YAKUCaPdPFjJ3NnAAhcZud8rFgr8Uso8xAyaAyD9rqh4wRwmgfob33yScBBLSnWDxQn3wCc0FONdW4",
+	"9rq7FaXAdrAXyCoGJ4YcmEdGn9WW90RMSj7DZs1U5OCb4RFhcEYrD+P6cILnkkvHdAABkbUPYcJLkWDU",
+	"huFGAiAVG5aALkvj9k1jpAt0mOJRw6Fy1R5BoC6U1Wn2FSYRxCSfDi3MmAVzv3sfM/7RuE+EM7Pto6ET",
+	"Jm8zCYJHlQxvKJW0I+gP1IyjOKoag73siROQFGjgHlCWWBxcmlCQeS1m8WjB1mnlTly5nYG9yNs9Bddq",
+	"4lBumbiaaOPgyw77Gnt5TFzLNqhrD1gsXGGb9xR5qRCsuPXB0EEEWdieOdExYHSrhgFyPA9RT310Yg8X",
+	"JlGaPKAE56yl8RLkZfvQJ+PI59mp3McqJ80i2TwT3hgOaTe77aj/xA0qLXv18tH256wF9BFJHx6dbTqO",
+	"CJUrLZPnCjZgm2Jk9nc/7/ZUyw8dgvvPYMw6JpvNe1v5IXvyCJbo+OTJI1ZKJTCZYrvDnkiFsfHa+g3Z",
+	"U4MRN3yAkdWW5b/KQ9oPWh40/RjB7Gs5mYjikJ2VXL3GOm36wqtjaZNrFMewXS/F0YJ12LEup2Nlo+Mq",
+	"ZYNVM6JABzA9b9gAP2JvWFgR9qaSLiDa+k1kgeBHT73Z3t6u/R9qyV9LVeTsDZsJy96wPNSQ4w8snzP6",
+	"MgY0hI/9AyajL8SSh1gcL6SqMP6sFyXJlr6uAx/EUgHqoPY6Yz/9p/+VdedqCNSwKowxZXFvh3t0xYue",
+	"ipPQlzglSletVJfn3EgDqMNCgfCCDfkAkbV70273rmBd1qJPiBXbbUNFQFqeJ+lWJ8LASkJKYs8JBE2/",
+	"1z9igtAahcd8nnHZ8Lz6VUg5TnKVxIMYKKTgrl5JfTnawTcH3s+3kMxXi/62dKlUzcy1kMxYu8NO9KW/",
+	"aSVlXID7OnI/UBO+RdJLWPt4DtJ2pa0ORUDRxlOALAJ9iOWfeX52agXLOzm0VIiBHPOS8jiDcYUFuoZE",
+	"WCGVync798T23bxNKB4M6NrUclXYkGlVG3vI8mf8GRDUx2qYVwCS8rVITTSU9c8IqsbPCMKaI4iJVMjE",
+	"+JtmIMqSrpl4pQCRnVHSawuDvGMZnOlIWXFnUXEVMnjA+hVTP6VFmEIiNZyNJaFMxDmk9xmwOQzn0fPh",
+	"1fVOggHwPp7k+pjOQNO8yxkQO8p1i6Ys/Gi/e/9T4oVo3XBSPOgcLoIwLN+BknYHz8tA4T/C/6LO0aOc",
+	"tkfz93k77hmc4wAnb4lLpHlsAQwKJpyKbDYcvEhYiWyBlobFAB0ocq/bpXc2Y7GKIMEFWHe46PFOI89m",
+	"nw4ZqtrrdjMogRILHmTKfExsEskcKLB4LZLw0mOsETwKfGJMrbaJmpDP6GFMMMxnyAmdaQq+RZGJ3OqI",
+	"p0L5+o7FSgsBTLFJ3MOhCp/gGpWxGDnmYakZj1Pe6XTysG6kmbvCWTjoqTzPe+pXnpehhhOqOxlpp5Er",
+	"2N5lLX+1Ll6h7Z6C7Z0FqYkEyvp9EEh/FmlCFihMT4WlzJSE70X2ZDfrdu5l3U53t7uXZSu/6N7/vPmL",
+	"vWy304Uv9rr3mr+4m+3RF/u7u/gF7Z7wPsPC97rZ19vd7v7ekg92796lD+5me35Cl/iQnExvBfOjrt6A",
+	"nYE7LbKBeGV47BcvCWOozRJ1XnRDuw0vy9W9SbZWdUMv61f18XvvWwyYR7UKr1AFqujuZb1MOPHNo7pX",
+	"dDFy7tA7DZfPHFzCsg4F7n/tSXseCrx9b1ju08Q1KdsKglG9gsWJwJsfHp6JgkgkjHks1ROhzt0oVSin",
+	"KSs+nOPTyfQ6xBmfoInwIDxghYmpmVrAb3pabbw031MLOpyMbEK+kL8aYqYRv2DeUJBEQTTpChYnOkfl",
+	"AbFkaD6TNs0eFeYOLYGKVQFL2Oic8gIE6HUCJ860LgVXuBnWi9XweFs+WMNM1b/JNOkfXdB+galctXWM",
+	"x4M8lC45zKkFY7oqzDYF6mkwXuBmXs94v9yAEehNMP/yoAA8wB4Hpt+jbUethBdlUe0a7TP0rGYlNmIg",
+	"JGLd1AnakqCPm/A6J1P13lPFTdUKWv3RJeYXEBoc7AG0eW/1iN22nwx9ktgxIvCkzeqnx3s/gKbIA1Ia",
+	"MM+FHMVaDUQWLmERtVg2WtkWI/4p/grCdwMSYpEfel+OYBMkIxv5GEBobZMPA3U+mAoJrh8lSt+JEJSG",
+	"I027URkyI4gUaNI9ShSicooSfe0rn4aoXz9JnYZ66oEwQFvmQVoDpfn9cZZaIqZlDUvM9hRoiIBkZWwO",
+	"MwVTXnoPpT49yg96areTtHJZ6+JSULADlodB5Yc9tZdWMdDTsmA1I+vc53fnW4yomDJA98+V2E9LeAuG",
+	"T45SIAJrijAGNXrNEyKSzdV1r5OGujV7v0R83RqSmldU+N1AELSJ7YH6lbaWzQOqYvFak62YOHwRINUI",
+	"MsqIknB7Ua+JSq4FGNbAFS7b2dJPCXyHFVDhkTACrsQlcKsxz+oc6irWgHWDH1Jthwy0MWLgUJEZdAzY",
+	"dF1iu4N2MUrx2va+VcFsDisZplw6b2GrI9v6ScM6QsZB7nPFHvbUp+l2qQHOHbAcNgVOCi9hO3yWfpvg",
+	"2LFWlEbgpGRkaYtQdtTZ9gF2wZ8qoOA118HoG4hHm8nEWQzQlgO6kqeueaQIz9H0QmKz7SmyqB0htMAB",
+	"Sy/84Uia3wTTVYXwi7Y01LY9+vLxCTvZB/JaloJczPIvpqoAuwn04fmZFeaC9OaWtShXe0w+9Or41VM2",
+	"0IUglZGbJl6CNV/HA1ZNAfvp//sPlL8tY8lkw+OemhgBik3FzSyrCCOUGHAF6mNvASPEWuzOIcsLARdl",
+	"Tiew2kX4BqnlI6PHebWQ7Q6rT1rNADnrqTBDwRiHSkW/4N4uafRl4BArtTbvKTuBW9COhHDsEmkd/Kbp",
+	"hiWblhztF6ZKNfrbjP0mY9sZ+/cZc/wM8yQfn0RgRe4vqTabGDGUV8EIyBXjE22d0ZOR8BDRcPOkdxSH",
+	"60/TRJGduQZJgVNC603Jo0mXHC4pGDVEiTHpFqbsajvdaaPys+2Lvd8I8xlNYdhjPfXlk8/YxV7nXmeX",
+	"5c9PXn170t3N2VhYi36sUrGHJ58xdGLAS0krkcBHsdbT0y+znnr+xQm9ev7FX+FrGuoBDSyjjThVYBX3",
+	"k0DbMWO62sA95eQYU15RGDlwRhN0f6W6k9ykcMAyf7eLc/iGCUU3HuY/5MZIcIgjLwX0J3j65MkLNjSE",
+	"8IyJbb58+fIFYJap6DvjRkbEpK2wflM1EMZxqdyMnU2Lc+HYTHgvgTRLJeqjL3jpQSVxcbxdZYlEcRId",
+	"xz6AYBHpzCo91VGgNmHDwaTMJoJVtKdTKf70Gdz5yPC+ozaN5mG5Nm1B07i1bGuvLtcsKVHzH6WlX0CG",
+	"ljrMPfnrT9Wtulb69IDY0i34WVI9CbsZKVTQvvscWC0+lyoicIm2suWAawj6mUvLviN4NOlZWDUQ82IT",
+	"2kXpEgHkIspc7X0jKgNAqxLmwC479G5JCcRTZP0q325vUPRq08hMJLETFbNyZz5oAu73Jb6gbLUrKMxo",
+	"nSOXdkGOvOTVdB96tx4SqDBnovdRj+5dQdODSSlQshLWuwosS+zh7d09lbSKERsVvzcvg4NfQdgLfsGD",
+	"7EZu/9JZUQ5RIgBUKdQJRIGhEvOm6lqvUH/p+UQFsCxoEffOotDWCOqOCSe8J4XfGofRP4HJouYCmjpl",
+	"onEY6sqA0QIRyONUB1lHuhjVMeI2rdSLKWFoJAX0VDW65eZEP4EfIJNAeoW+h8RrNI6fKYC9dqM23nhR",
+	"YI1xvabS4wQ/y48YoB/tEe9fPVoUcTc6nVgmvgvgoG4kxpvc/ysUp76hne+j08bbW1adDiuvNSKwGeMD",
+	"o62FcdF5CxCIdM+iYrWnFjSrh+ya6yY25a9eL7Gg8kgWVQIi6hdBMIcrg9LZVN5sSyQUomJLhZRFsgJo",
+	"0bWhL1yF/m009tcjkWOPbgcz672mIa7NzUfB4pdOZxZOKZ/brbcmYlTgPXRgQ2ZwXq4na6zOPvLFDBk+",
+	"n+MXx5Hk6c1YTeEZ+fR6lmJ0Xuqp2FGE5rAZ+rn7swod9nhyVf8rxYZPuOUMl2UT8fjal6kSwN4CR9dA",
+	"MN6BUrx69fhBoBG3zwB+HSftZwJFvTb1blzlj0l4P3J8H5ISh6PBeLXzbi0Zb5Dht8fcCSN5eYu2cZ9n",
+	"tzIw+iYwhmagi6Xg76e+xNPYp/d58OcaWwkIHzr0MVT8vUDCL2yVTbDgl3AZG0MQDoTxWkQjAsZ76A9s",
+	"desAssVqHzfk7R6olfRFB2gczNGMk/vYNnE14aoQRT+xjuTkdZVj/lhIykUxSLmPzMhjUtectX78R8az",
+	"ShFmxMBxdT4tucl6asp+y/jOT3//X+9i+v+5HmpTM7tQuMTEiAk33uUC4qEp9C0OlPDXpUMHivBxf4gm",
+	"xxBM7UftX/uwMOvEBAzkpYTYPu80B6bQCwgKIevY+EkUcKTpqThO2z5kiVI2Q+sXVhFsfQgQE82xE+7z",
+	"utHr3/oH7Mcf2J/+/8x3YQebb0dnEiNK7uRFlR+4p1KL1UCPzzDAoWrgjo/hQi0iDQNSg+60YMZ//OGr",
+	"dk+1/vL4L55ChAn78b/f6+x2Pj1kD6eGA43ZOX788uiY/f7V0VN2NJl02MPOLsRUeUz/CLPaUx4MBDS/",
+	"QB6BfcTAG9Q1tva791fgU86TsV8qUuV8P38mld/CdC2VSP0tFg7GzaDm482XN1+6O9/Dgn/0Z/7ITX6w",
+	"DKQLd+3NgaiX7ud35SUblWzXEroGuRd682egI1uTKFW06KOe7JcA5P4uR2m1bozQYzeGxXxs7VRYUGtx",
+	"VQCvBNWwVsRu2d37nJ1JZ9uVnhkcfxXBwdig7xIDI1xUYqFlOEQDqXJ2GENUhQk4PfAcmSyP+dJTiK2N",
+	"Tl/oi1zqc+Aal/MxL6Grv1TmBTv3M3Es2PY14Wa4zlnlfeBXELzdFHKRH1G4P7IMG5M4pCaM0+5KSJsn",
+	"TmsyCfR1jHSinBJrU7QTcaFfe6EMazr04e4VOEF3t11Jhj7fmk/RiS7iPZUgLQRXDIP1Fp5CktWvEXQb",
+	"u7uEOL0/RXuNluwvzhZNy8eMLr8IxhqW4t2PiRGqsO8zDb/1iaWWpN6vQ/MmATWoY+kpcKCP+z/JoJzb",
+	"Uk8A0AMj/c+4FSmM0lhwsq55++HpA6ypCurJQ4m8ikaoukt2NVXoy6rBvS4g/MLdanQZkEOsxIz1P/7j",
+	"Hjt9wFqX3ACmLyl/fvzHu/iQ/OvaaG7XCvy+TkficsQNBFPAf1uPT5+zzz7/rLu954fztbDuHMMl0c1s",
+	"d3vPVpVnbHf7LgDq7G3v2YydbO/bjO1v75L7wm73CgAHwPG3jcoeARPJKeqrmlhbD8Sy5HqPgd9Kuxgt",
+	"dBj/SuPJQRnnDZE9lccGDtiQl1bkoBO8kLok/V/Q7FkczHyuSXBFvNAluv+hb/xQXAZYGMAwnF8cNxLG",
+	"+7DFRQdcEVoPdEdUkLWF/P6pSWmrSeiwI4JcYbuItlKNqqdgYx8yiFBXA4LUDajJKt0RGE2BEMotxQ1i",
+	"CrkwF6iwhEXEY8X8hZ4lHCkG3g9E5gOkzjSCIczI+bOnfn/M8CIvpkZYiqTlg4ERhXQe6MoIUMM6uFRU",
+	"wU6fv/Cwbohs3SzDYm+W3COrUDBuJy9aUzP+8L/XNuJo14amwHl6EYs1AGY8REACoB+pEyz4CKGH7sVS",
+	"1BPYGLcA2PGEu4bWxdU1rTt9C21/qS8hGHA2fyazig3CkJw6Ac0ID9QlRHpZL8P7ZqznvRTqea+G9Lz3",
+	"gZGe6Twt890URsKkwNENI8oi0pQqKtL40az3HhKGGDl0gePwQMnhQFNEEcUvIZsxd5nD4tRv3oStor2+",
+	"rl7lGjM4cV07k1K7jr04f0/sF7ZSi4KkdvM5HJXqWsgYuZx493Q/PcilHKS8g8c+JZdIusoGQjlkDZS/",
+	"24gn6qmEFaJ5jgHcoTZkPehUCPQwLUXwdUKDJYIhl3B3nzQwI0o76vWqy+9Fqd3pV3/x8Q78eAd+vAOT",
+	"O1CO+bnYsRfnv7kalzcIzUPS8PEau/1EBinppTA7pN0ZIyp2y7cStC0GUwNaQ6CKZ4IbYY6mbrR18Idv",
+	"3n4TG5w/D48rmR4d6PWw5vtRhWy1KmHctjvVfodSDSiDjyhxQFpXOGgUD5NgUcAtapMq/ZwsVvpYXQhj",
+	"BZsYUchBSOITtHQ1/Mi0vurzpkp/f+RhD7Avqd9tPZGzuGwqXIUQ1nNVZDHsJ4nbi/fmoEpzUWvFO7sv",
+	"NPNVYxhdVsUVVtD0HqNBsaE2A5HU/t2goeIjvMIwg783PCWONiC4ionjGLmmSzmQIp1WX6Cp1hePfR7D",
+	"Tkq+4UFT/hh0SIwTputxU6IUA2e0koMka2u6uFi6odonYKASNqbjwD/Hwhk5CPUnyZ8684CItFu+efv/",
+	"DAA=",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
