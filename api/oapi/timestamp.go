@@ -19,8 +19,9 @@ func (e *LeapSecondError) Error() string {
 
 // ParseTimestamp reads an RFC 3339 date-time as the contract allows it:
 // the separator T and the zone Z in either case (RFC 3339 section 5.6 says
-// they may be lower case), any number of fractional digits, an offset of at
-// most 23:59. A leap second is a *LeapSecondError.
+// they may be lower case), any number of fractional digits (cut to whole
+// microseconds), an offset of at most 23:59. A leap second is a
+// *LeapSecondError.
 func ParseTimestamp(s string) (time.Time, error) {
 	const secondAt = len("2006-01-02T15:04:")
 	if len(s) > secondAt+1 && s[secondAt] == '6' && s[secondAt+1] == '0' && s[secondAt-1] == ':' && (s[10] == 'T' || s[10] == 't') {
@@ -45,7 +46,9 @@ func ParseTimestamp(s string) (time.Time, error) {
 	if _, off := t.Zone(); off <= -24*3600 || off >= 24*3600 {
 		return time.Time{}, fmt.Errorf("%q is not an RFC 3339 date-time: its offset's hours are 00 to 23", s)
 	}
-	return t, nil
+	// The instant the store will keep (whole microseconds, see
+	// MarshalJSON), so that every rule judges the time that is stored.
+	return t.Truncate(time.Microsecond), nil
 }
 
 // TimestampLayout is how every response writes a time: RFC 3339 in UTC with
@@ -74,18 +77,20 @@ func TimestampPtr(t *time.Time) *Timestamp {
 
 // String is the time as a response writes it.
 func (t Timestamp) String() string {
-	return t.UTC().Round(time.Microsecond).Format(TimestampLayout)
+	return t.UTC().Truncate(time.Microsecond).Format(TimestampLayout)
 }
 
-// MarshalJSON writes the time in UTC with six fractional digits (rounded to
-// the microsecond as PostgreSQL rounds what it stores).
+// MarshalJSON writes the time in UTC with six fractional digits, cut to the
+// microsecond as the store keeps it (pgx sends a time to PostgreSQL as whole
+// microseconds, dropping the nanoseconds below): an answer made from a time
+// in memory says what a read of the stored time will say.
 func (t Timestamp) MarshalJSON() ([]byte, error) {
 	if y := t.UTC().Year(); y < 0 || y > 9999 {
 		return nil, fmt.Errorf("oapi: timestamp year %d outside 0000-9999", y)
 	}
 	b := make([]byte, 0, len(TimestampLayout)+2)
 	b = append(b, '"')
-	b = t.UTC().Round(time.Microsecond).AppendFormat(b, TimestampLayout)
+	b = t.UTC().Truncate(time.Microsecond).AppendFormat(b, TimestampLayout)
 	return append(b, '"'), nil
 }
 

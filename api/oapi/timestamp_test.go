@@ -19,8 +19,11 @@ func TestTimestampFixedPrecision(t *testing.T) {
 	}{
 		{"whole second", time.Date(2026, 3, 1, 8, 0, 0, 0, time.UTC), `"2026-03-01T08:00:00.000000Z"`},
 		{"milliseconds", time.Date(2026, 3, 1, 8, 0, 0, 500_000_000, time.UTC), `"2026-03-01T08:00:00.500000Z"`},
-		{"nanoseconds round half up", time.Date(2026, 3, 1, 8, 0, 0, 123_456_500, time.UTC), `"2026-03-01T08:00:00.123457Z"`},
-		{"nanoseconds round down", time.Date(2026, 3, 1, 8, 0, 0, 123_456_499, time.UTC), `"2026-03-01T08:00:00.123456Z"`},
+		// Cut, not rounded: the store keeps whole microseconds, dropping the
+		// nanoseconds below (pgx's binary timestamptz), and an answer says
+		// what a read will.
+		{"nanoseconds cut at half", time.Date(2026, 3, 1, 8, 0, 0, 123_456_500, time.UTC), `"2026-03-01T08:00:00.123456Z"`},
+		{"nanoseconds cut", time.Date(2026, 3, 1, 8, 0, 0, 123_456_999, time.UTC), `"2026-03-01T08:00:00.123456Z"`},
 		{"other zone", time.Date(2026, 3, 1, 1, 30, 0, 0, plus2), `"2026-02-28T23:30:00.000000Z"`},
 	}
 	for _, tt := range tests {
@@ -36,7 +39,7 @@ func TestTimestampFixedPrecision(t *testing.T) {
 			if err := json.Unmarshal([]byte(tt.want), &back); err != nil {
 				t.Fatal(err)
 			}
-			if !back.Equal(tt.in.Round(time.Microsecond)) {
+			if !back.Equal(tt.in.Truncate(time.Microsecond)) {
 				t.Errorf("read back %v, want %v", back.Time, tt.in)
 			}
 		})
@@ -56,6 +59,11 @@ func TestParseTimestamp(t *testing.T) {
 		if err != nil || !got.Equal(want) {
 			t.Errorf("ParseTimestamp(%q) = %v, %v; want %v", s, got, err, want)
 		}
+	}
+	// Cut to the microsecond the store keeps, as PostgreSQL holds a time
+	// pgx sends (2001-01-01T00:00:00.0000015Z is stored as .000001).
+	if got, err := ParseTimestamp("2001-01-01T00:00:00.0000015Z"); err != nil || got.Nanosecond() != 1000 {
+		t.Errorf("ParseTimestamp(.0000015) = %v, %v; want .000001", got, err)
 	}
 	for _, s := range []string{"2016-12-31T23:59:60Z", "2016-12-31t23:59:60.5+00:00"} {
 		var leap *LeapSecondError
