@@ -21,6 +21,7 @@ require (
 	golang.org/x/time v0.15.0
 	gonum.org/v1/gonum v0.17.0
 	gonum.org/v1/plot v0.17.0
+	pgregory.net/rapid v1.3.0
 )
 
 require (

@@ -137,6 +137,77 @@ func TestScopeMatrix(t *testing.T) {
 	// The matrix sends many revoked and unknown tokens from one address on
 	// purpose; the failure limit has tests of its own.
 	e := newEnvConfig(t, api.Config{AuthFailureBurst: -1})
+	fixtures := routeFixtures(t, e)
+
+	ops := specScopes(t)
+	for id := range ops {
+		if fixtures[id] == nil {
+			t.Errorf("the spec's operation %s has no fixture in the matrix", id)
+		}
+	}
+	for id := range fixtures {
+		if _, ok := ops[id]; !ok {
+			t.Errorf("fixture %s names no /v1 operation of the spec", id)
+		}
+	}
+
+	type caller struct {
+		name  string
+		scope string // "" for callers without a valid token
+		auth  string
+	}
+	var callers []caller
+	for _, s := range []string{"runs:write", "results:read", "curves:review", "admin"} {
+		_, secret := e.token(t, strings.ReplaceAll(s, ":", "-")+"-holder", s)
+		callers = append(callers, caller{s, s, "Bearer " + secret})
+	}
+	revokedID, revoked := e.token(t, "revoked-holder", "admin")
+	if r := e.do(t, call{method: http.MethodDelete, path: "/v1/tokens/" + revokedID, token: e.admin}); r.status != http.StatusNoContent {
+		t.Fatalf("revoke: %s", r)
+	}
+	callers = append(callers, caller{name: "no token"}, caller{name: "revoked admin token", auth: "Bearer " + revoked},
+		caller{name: "malformed header", auth: "Token " + e.admin})
+
+	ids := make([]string, 0, len(ops))
+	for id := range ops {
+		ids = append(ids, id)
+	}
+	sort.Strings(ids)
+	cells := 0
+	for _, id := range ids {
+		op := ops[id]
+		for _, c := range callers {
+			t.Run(id+"/"+c.name, func(t *testing.T) {
+				req, success := fixtures[id](t)
+				req.auth = c.auth
+				want := http.StatusUnauthorized
+				if c.scope != "" {
+					want = http.StatusForbidden
+					if slices.Contains(op.scopes, c.scope) {
+						want = success
+					}
+				}
+				got := e.do(t, req)
+				cells++
+				if got.status != want {
+					t.Errorf("%s %s as %s (route admits %v): %s, want %d", op.method, op.path, c.name, op.scopes, got, want)
+				}
+			})
+		}
+	}
+	if want := len(ops) * len(callers); cells != want {
+		t.Errorf("ran %d cells, want %d", cells, want)
+	}
+	t.Logf("security: scope matrix: %d /v1 operations × %d callers = %d cases", len(ops), len(callers), cells)
+}
+
+// routeFixtures gives each /v1 operation a request that succeeds for an
+// admitted caller (the admin token), and that success status; a write's
+// fixture makes a fresh request each time it is called. It sets up e: the
+// method nitrate-uv, a run on photometer-7 with a late sample, an approved
+// curve, the person matrix-qa and the material CRM-0.
+func routeFixtures(t *testing.T, e *env) map[string]func(t *testing.T) (call, int) {
+	t.Helper()
 	e.method(t, "nitrate-uv", "nitrate")
 	run := e.run(t, e.admin, runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 1)))
 	curve := "/v1/curves/" + run.Curves[0].ID.String()
@@ -174,7 +245,7 @@ func TestScopeMatrix(t *testing.T) {
 		"analyte": "nitrate", "unit": "mg/L", "value": 1000.0, "tolerance": 2.0, "expires_at": future}); r.status != http.StatusCreated {
 		t.Fatalf("standard material: %s", r)
 	}
-	fixtures := map[string]func(t *testing.T) (call, int){
+	return map[string]func(t *testing.T) (call, int){
 		"createRun": func(t *testing.T) (call, int) {
 			n++
 			return jsonCall(http.MethodPost, "/v1/runs", runBody("nitrate-uv", "photometer-7", baseTime.AddDate(0, 1, n), standards("nitrate", 3))), http.StatusCreated
@@ -317,65 +388,4 @@ func TestScopeMatrix(t *testing.T) {
 			return call{method: http.MethodDelete, path: "/v1/tokens/" + id}, http.StatusNoContent
 		},
 	}
-
-	ops := specScopes(t)
-	for id := range ops {
-		if fixtures[id] == nil {
-			t.Errorf("the spec's operation %s has no fixture in the matrix", id)
-		}
-	}
-	for id := range fixtures {
-		if _, ok := ops[id]; !ok {
-			t.Errorf("fixture %s names no /v1 operation of the spec", id)
-		}
-	}
-
-	type caller struct {
-		name  string
-		scope string // "" for callers without a valid token
-		auth  string
-	}
-	var callers []caller
-	for _, s := range []string{"runs:write", "results:read", "curves:review", "admin"} {
-		_, secret := e.token(t, strings.ReplaceAll(s, ":", "-")+"-holder", s)
-		callers = append(callers, caller{s, s, "Bearer " + secret})
-	}
-	revokedID, revoked := e.token(t, "revoked-holder", "admin")
-	if r := e.do(t, call{method: http.MethodDelete, path: "/v1/tokens/" + revokedID, token: e.admin}); r.status != http.StatusNoContent {
-		t.Fatalf("revoke: %s", r)
-	}
-	callers = append(callers, caller{name: "no token"}, caller{name: "revoked admin token", auth: "Bearer " + revoked},
-		caller{name: "malformed header", auth: "Token " + e.admin})
-
-	ids := make([]string, 0, len(ops))
-	for id := range ops {
-		ids = append(ids, id)
-	}
-	sort.Strings(ids)
-	cells := 0
-	for _, id := range ids {
-		op := ops[id]
-		for _, c := range callers {
-			t.Run(id+"/"+c.name, func(t *testing.T) {
-				req, success := fixtures[id](t)
-				req.auth = c.auth
-				want := http.StatusUnauthorized
-				if c.scope != "" {
-					want = http.StatusForbidden
-					if slices.Contains(op.scopes, c.scope) {
-						want = success
-					}
-				}
-				got := e.do(t, req)
-				cells++
-				if got.status != want {
-					t.Errorf("%s %s as %s (route admits %v): %s, want %d", op.method, op.path, c.name, op.scopes, got, want)
-				}
-			})
-		}
-	}
-	if want := len(ops) * len(callers); cells != want {
-		t.Errorf("ran %d cells, want %d", cells, want)
-	}
-	t.Logf("security: scope matrix: %d /v1 operations × %d callers = %d cases", len(ops), len(callers), cells)
 }

@@ -3,10 +3,12 @@ package api_test
 import (
 	"net/http"
 	"net/url"
+	"strings"
 	"testing"
 	"time"
 
 	"curvekeeper/api"
+	"curvekeeper/api/oapi"
 	"curvekeeper/lab"
 	"curvekeeper/store/dbtest"
 )
@@ -93,5 +95,69 @@ func TestTimestampsAreRepresentableAndPlausible(t *testing.T) {
 	}
 	if r := e.get(t, e.admin, "/v1/curves"); r.status != http.StatusOK {
 		t.Errorf("GET /v1/curves after the accepted runs: %s", r)
+	}
+}
+
+// TestRFC3339EdgeCases: RFC 3339 section 5.6 allows the separator T and the
+// zone Z in lower case, so they are accepted wherever a time is (a JSON body,
+// the CSV run's acquired_at, a query parameter) and read back as the same
+// instant; a leap second (23:59:60) is refused with the field named and a
+// sentence saying why, not the parser's message.
+func TestRFC3339EdgeCases(t *testing.T) {
+	t.Parallel()
+	e := newEnvDB(t, api.Config{}, dbtest.NewDB(t))
+	e.method(t, "nitrate-uv", "nitrate", "phosphate")
+	at := func(s string) map[string]any {
+		b := runBody("nitrate-uv", "photometer-7", baseTime, standards("nitrate", 2))
+		b["acquired_at"] = s
+		return b
+	}
+
+	lower := e.run(t, e.admin, at("2026-03-02t08:00:00.5z"))
+	got := decode[oapi.Run](t, e.get(t, e.admin, "/v1/runs/"+lower.ID.String()), http.StatusOK)
+	if want := time.Date(2026, 3, 2, 8, 0, 0, 500_000_000, time.UTC); !got.AcquiredAt.Equal(want) {
+		t.Errorf("run acquired at 2026-03-02t08:00:00.5z reads back as %s, want %s", got.AcquiredAt, want)
+	}
+	csv, _ := nitrateCSV(3)
+	r := e.do(t, call{method: http.MethodPost, path: csvPath("nitrate-uv", "photometer-7", "2026-03-02t09:00:00+01:00"),
+		token: e.admin, contentType: "text/csv", body: []byte(csv)})
+	if r.status != http.StatusCreated {
+		t.Errorf("CSV run acquired at 2026-03-02t09:00:00+01:00: %s", r)
+	}
+	curve := "/v1/curves/" + lower.Curves[0].ID.String()
+	if r := e.postJSON(t, e.admin, curve+"/verifications", map[string]any{"kind": "continuing", "level": "CCV",
+		"concentration": 2, "responses": []float64{1.04}, "acquired_at": "2026-03-02t10:00:00z"}); r.status != http.StatusCreated {
+		t.Errorf("verification at 2026-03-02t10:00:00z: %s", r)
+	}
+	page := decode[oapi.CurveList](t, e.get(t, e.admin, "/v1/curves?from="+url.QueryEscape("2026-03-02t07:59:59z")), http.StatusOK)
+	if len(page.Curves) != 2 {
+		t.Errorf("curves from 2026-03-02t07:59:59z: %d, want the 2 posted", len(page.Curves))
+	}
+
+	before := e.counts(t)
+	const leap = "2016-12-31T23:59:60Z" // a real leap second (IERS Bulletin C 52)
+	leapMessage := func(p api.Problem) {
+		t.Helper()
+		if !strings.Contains(p.Detail, "leap second") || strings.Contains(p.Detail, "out of range") {
+			t.Errorf("leap second refused with %q, want a sentence naming the leap second", p.Detail)
+		}
+	}
+	leapMessage(wantProblem(t, e.postJSON(t, e.admin, "/v1/runs", at(leap)), http.StatusUnprocessableEntity, "/acquired_at"))
+	leapMessage(wantProblem(t, e.postJSON(t, e.admin, "/v1/runs", at("2016-12-31t23:59:60.25z")), http.StatusUnprocessableEntity, "/acquired_at"))
+	leapMessage(wantProblem(t, e.postJSON(t, e.admin, curve+"/verifications", map[string]any{"kind": "continuing", "level": "CCV",
+		"concentration": 2, "responses": []float64{1.04}, "acquired_at": leap}), http.StatusUnprocessableEntity, "/acquired_at"))
+	leapMessage(wantProblem(t, e.postJSON(t, e.admin, "/v1/runs/"+lower.ID.String()+"/samples", map[string]any{"samples": []map[string]any{
+		{"id": "LATE-1", "analyte": "nitrate", "responses": []float64{1.5}, "acquired_at": leap}}}), http.StatusUnprocessableEntity, "/samples/0/acquired_at"))
+	// Parameters: an invalid query parameter is a malformed request (400).
+	leapMessage(wantProblem(t, e.do(t, call{method: http.MethodPost, path: csvPath("nitrate-uv", "photometer-7", leap),
+		token: e.admin, contentType: "text/csv", body: []byte(csv)}), http.StatusBadRequest, "query:acquired_at"))
+	leapMessage(wantProblem(t, e.get(t, e.admin, "/v1/curves?to="+url.QueryEscape(leap)), http.StatusBadRequest, "query:to"))
+	// A leap second beside another breach is still a malformed body (400),
+	// with both named.
+	b := at(leap)
+	delete(b, "method")
+	wantProblem(t, e.postJSON(t, e.admin, "/v1/runs", b), http.StatusBadRequest, "/acquired_at")
+	if d := before.diff(e.counts(t)); d != "" {
+		t.Errorf("refused requests changed the tables: %s", d)
 	}
 }

@@ -169,7 +169,8 @@ func (s *Server) ReviewCurve(ctx context.Context, req oapi.ReviewCurveRequestObj
 		return nil, err
 	}
 	s.curves.drop(id)
-	c, err := s.freshCurve(ctx, id)
+	// Read inside the write's unit, so not cached: the unit may still fail.
+	c, err := s.lab.GetCurve(ctx, id)
 	if err != nil {
 		return nil, err
 	}

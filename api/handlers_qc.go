@@ -72,7 +72,8 @@ func (s *Server) CreateExclusion(ctx context.Context, req oapi.CreateExclusionRe
 	if err != nil {
 		return nil, err
 	}
-	rc, err := s.freshCurve(ctx, revID)
+	// Read inside the write's unit, so not cached: the unit may still fail.
+	rc, err := s.lab.GetCurve(ctx, revID)
 	if err != nil {
 		return nil, err
 	}

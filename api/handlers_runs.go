@@ -32,6 +32,17 @@ func (s *Server) CreateRun(ctx context.Context, req oapi.CreateRunRequestObject)
 	if req.Params.IdempotencyKey != nil {
 		in.IdempotencyKey = *req.Params.IdempotencyKey
 	}
+	// The answer is made and encoded before the run's rows are written
+	// (see atomic.go): one that cannot be sent stores nothing.
+	in.CheckAnswer = func(c *lab.RunCreated) error {
+		if _, err := recordAnswer("CreateRun", runCreatedOut(c)); err != nil {
+			return err
+		}
+		if s.answerFault != nil {
+			return s.answerFault("CreateRun")
+		}
+		return nil
+	}
 	created, err := s.lab.Ingest(ctx, p, in)
 	if err != nil {
 		return nil, lines.locate(err) // a CSV run's breaches name its lines

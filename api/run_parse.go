@@ -102,19 +102,21 @@ func (p *fastParser) runSample() (oapi.RunSampleInput, bool) {
 	return sm, ok && have.all(0, 1, 2)
 }
 
-// dateTimeInto reads a string in the one shape of RFC 3339 that both the
-// spec's date-time format (kin-openapi's FormatOfStringDateTime and its
-// check of the day) and time.Time's UnmarshalJSON, which encoding/json
-// calls, accept, and stores the time that UnmarshalJSON makes of it.
-// kin-openapi accepts the leap second :60, which time refuses: that string
-// gives up here, and the spec's validator and the decoder answer it as
-// before.
+// dateTimeInto reads a string in the common shape of RFC 3339 (upper-case
+// T and Z, no leap second; isDateTimeShape) and stores the time that
+// oapi.Timestamp's UnmarshalJSON, which the decoder calls, makes of it
+// (oapi.ParseTimestamp: cut to the microsecond). Any other shape (lower
+// case, a leap second) gives up here, and the spec's validator and the
+// decoder answer it.
 func (p *fastParser) dateTimeInto(dst *time.Time) bool {
 	p.ws()
-	start := p.i
 	s, ok := p.str()
-	// UnmarshalJSON gets the string with its quotes, as from encoding/json.
-	return ok && isDateTimeShape(s) && dst.UnmarshalJSON(p.raw[start:p.i]) == nil
+	if !ok || !isDateTimeShape(s) {
+		return false
+	}
+	t, err := oapi.ParseTimestamp(string(s))
+	*dst = t
+	return err == nil
 }
 
 // strInto reads a string (see str) into dst.

@@ -62,6 +62,10 @@ type Server struct {
 	// authFailures counts failed authentications per client address; nil
 	// when that limit is off.
 	authFailures *tokenLimiter
+	// answerFault, when set (by tests only, api/fault_export_test.go), is
+	// asked after each unit's answer is made, before the commit; an error
+	// fails the unit as a failed encoding would.
+	answerFault func(op string) error
 }
 
 // New builds the server and its routes.
@@ -110,7 +114,8 @@ func New(cfg Config, svc *lab.Service, log *slog.Logger) (*Server, error) {
 	e.Use(s.securityHeadersMiddleware, s.requestIDMiddleware, s.logMiddleware, s.metrics.middleware, s.recoverMiddleware, s.framingMiddleware,
 		s.timeoutMiddleware, s.bodyLimitMiddleware, s.replicationMiddleware, s.authMiddleware, s.rateLimitMiddleware, acceptMiddleware, requestValidator(spec))
 	s.metrics.registry.MustRegister(newReplicationCollector(s.topo))
-	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, nil))
+	unit, idem := unitOps(doc)
+	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, []oapi.StrictMiddlewareFunc{s.unitMiddleware(unit, idem)}))
 	s.registerDecodedRoutes(e)
 	s.ui = qaui.New(qaui.Deps{Lab: svc, Log: log, Reading: s.reading, Curve: s.freshCurve, Audit: s.curveAudit, Reviewed: s.curves.drop,
 		Plot:       func(ctx context.Context, id string) ([]byte, error) { return s.plot(ctx, id, curveplot.FormatSVG) },

@@ -45,6 +45,7 @@ const bootstrapSecret = "ck_test_bootstrap_admin_0123456789abcdef"
 // env is one test's service: its database, its HTTP server and the admin
 // token it was bootstrapped with.
 type env struct {
+	api   *api.Server
 	db    *store.DB
 	srv   *httptest.Server
 	admin string
@@ -105,7 +106,7 @@ func newEnvDB(t testing.TB, cfg api.Config, db *store.DB, opts ...lab.Option) *e
 	if _, _, err := db.EnsureToken(context.Background(), "bootstrap-admin", bootstrapSecret, []string{lab.ScopeAdmin}); err != nil {
 		t.Fatalf("EnsureToken: %v", err)
 	}
-	return &env{db: db, srv: srv, admin: bootstrapSecret, logs: logs}
+	return &env{api: s, db: db, srv: srv, admin: bootstrapSecret, logs: logs}
 }
 
 func tail(s string, n int) string {

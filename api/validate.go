@@ -14,6 +14,7 @@ import (
 	"github.com/labstack/echo/v4"
 	oapimw "github.com/oapi-codegen/echo-middleware"
 
+	"curvekeeper/api/oapi"
 	"curvekeeper/api/qaui"
 	"curvekeeper/lab"
 )
@@ -22,6 +23,13 @@ func init() {
 	// The CSV layout is checked by decodeCSVRun, which names the line and
 	// column of every breach; the schema sees the body as a string only.
 	openapi3filter.RegisterBodyDecoder("text/csv", openapi3filter.PlainBodyDecoder)
+	// A date-time is what oapi.Timestamp reads: RFC 3339 with T and Z in
+	// either case (kin-openapi's own pattern knows upper case only) and no
+	// leap second, which validationProblem answers with its own message.
+	openapi3.DefineStringFormatValidator("date-time", openapi3.NewCallbackValidator(func(v string) error {
+		_, err := oapi.ParseTimestamp(v)
+		return err
+	}))
 }
 
 // requestValidator checks every request against the OpenAPI document before
@@ -136,9 +144,11 @@ func checkContentType(req *http.Request, op *openapi3.Operation) *problemError {
 
 // validationProblem turns the validator's errors into one 400 problem that
 // lists each offending field by JSON pointer (body) or by "query:name",
-// "path:name" or "header:name" (parameters).
+// "path:name" or "header:name" (parameters). A body whose only breaches are
+// leap seconds is well formed but names times the service cannot store: 422.
 func validationProblem(he *echo.HTTPError) *problemError {
 	var fields []ProblemField
+	leapOnly := true
 	var walk func(err error)
 	walk = func(err error) {
 		// A type assertion, not errors.As: MultiError's As method would also
@@ -156,16 +166,26 @@ func validationProblem(he *echo.HTTPError) *problemError {
 			if re.Parameter != nil {
 				prefix = re.Parameter.In + ":" + re.Parameter.Name
 			}
+			add := func(e error, fallback ...string) {
+				f := fieldOf(prefix, e, fallback...)
+				var leap *oapi.LeapSecondError
+				if errors.As(e, &leap) {
+					f.Detail = leap.Error()
+				}
+				leapOnly = leapOnly && leap != nil && prefix == ""
+				fields = append(fields, f)
+			}
 			var inner openapi3.MultiError
 			if errors.As(re.Err, &inner) {
 				for _, e := range inner {
-					fields = append(fields, fieldOf(prefix, e))
+					add(e)
 				}
 				return
 			}
-			fields = append(fields, fieldOf(prefix, re.Err, re.Reason))
+			add(re.Err, re.Reason)
 			return
 		}
+		leapOnly = false
 		fields = append(fields, ProblemField{Pointer: "", Detail: firstLine(err.Error())})
 	}
 	if he.Internal != nil {
@@ -182,6 +202,9 @@ func validationProblem(he *echo.HTTPError) *problemError {
 	}
 	if len(fields) > 50 {
 		fields = fields[:50]
+	}
+	if leapOnly && len(fields) > 0 {
+		return newProblem(http.StatusUnprocessableEntity, detail, fields...)
 	}
 	return newProblem(http.StatusBadRequest, detail, fields...)
 }

@@ -46,7 +46,7 @@ func humanReason(se *openapi3.SchemaError) string {
 	if s := se.Schema; s != nil {
 		switch se.SchemaField {
 		case "format":
-			if s.Format == "date-time" {
+			if s.Format == "date-time" && !strings.Contains(se.Reason, "leap second") {
 				return dateTimeWords
 			}
 		case "pattern":
@@ -65,6 +65,14 @@ func humanReason(se *openapi3.SchemaError) string {
 // humanMessage is humanReason for a breach known only by its message (a
 // parameter judged by the JSON Schema validator).
 func humanMessage(msg string) string {
+	// A leap second has its own sentence (oapi.LeapSecondError): keep it,
+	// without the validator's words around it.
+	if i := strings.Index(msg, "names a leap second"); i >= 0 {
+		if j := strings.LastIndex(msg[:i], "the time "); j >= 0 {
+			return msg[j:]
+		}
+		return msg
+	}
 	if strings.Contains(msg, `format "date-time"`) || strings.Contains(msg, `format 'date-time'`) {
 		return dateTimeWords
 	}

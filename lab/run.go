@@ -54,8 +54,12 @@ type RunInput struct {
 	IdempotencyKey string
 	TokenID        string
 	Actor          string // who posted it, for the audit trail
-	Standards      []Standard
-	Samples        []Sample
+	// CheckAnswer, when set, is given the run's answer once its ids are
+	// drawn and before any of its rows is written: an error (the api could
+	// not encode the answer) stores nothing.
+	CheckAnswer func(*RunCreated) error
+	Standards   []Standard
+	Samples     []Sample
 	// Materials names the standard materials (codes) the run's standards
 	// were made from; see addStandardsChecks.
 	Materials []string

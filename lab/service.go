@@ -61,6 +61,7 @@ type Reader interface {
 // audit row, and the Service's methods apply the rules around it.
 type Writer interface {
 	RunStore
+	Unit
 	MaterialStore
 	CreateMethod(ctx context.Context, in MethodInput, actor string) (m *Method, created bool, err error)
 	// IssueToken stores a token checked by CheckTokenInput.

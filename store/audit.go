@@ -63,14 +63,14 @@ func (db *DB) ListAudit(ctx context.Context, curveID string) ([]lab.AuditEvent, 
 		return nil, err
 	}
 	var runID string
-	err = db.Pool.QueryRow(ctx, `SELECT run_id FROM curves WHERE id = $1`, id).Scan(&runID)
+	err = db.q(ctx).QueryRow(ctx, `SELECT run_id FROM curves WHERE id = $1`, id).Scan(&runID)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, lab.Errorf(lab.KindNotFound, "curve %s not found", id)
 	}
 	if err != nil {
 		return nil, classify("select curve "+id, err)
 	}
-	rows, err := db.Pool.Query(ctx, sqlSelectAuditOfCurve, id, runID)
+	rows, err := db.q(ctx).Query(ctx, sqlSelectAuditOfCurve, id, runID)
 	if err != nil {
 		return nil, classify("select audit of curve "+id, err)
 	}

@@ -17,7 +17,7 @@ func (db *DB) CurveStatus(ctx context.Context, id string) (string, error) {
 		return "", err
 	}
 	var status string
-	err = db.Pool.QueryRow(ctx, `SELECT status FROM curves WHERE id = $1`, id).Scan(&status)
+	err = db.q(ctx).QueryRow(ctx, `SELECT status FROM curves WHERE id = $1`, id).Scan(&status)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return "", lab.Errorf(lab.KindNotFound, "no curve %s", id)
 	}

@@ -59,7 +59,7 @@ func (db *DB) GetCurve(ctx context.Context, id string) (*lab.Curve, error) {
 		decision, reason, actor *string
 		at                      *time.Time
 	)
-	summary, err := scanCurveSummary(db.Pool.QueryRow(ctx, `
+	summary, err := scanCurveSummary(db.q(ctx).QueryRow(ctx, `
 SELECT c.`+strings.ReplaceAll(curveColumns, ", ", ", c.")+`, c.report, r.decision, r.reason, r.actor, r.at
 FROM curves c LEFT JOIN reviews r ON r.curve_id = c.id AND r.withdrawn_at IS NULL
 WHERE c.id = $1`, id), &report, &decision, &reason, &actor, &at)
@@ -126,7 +126,7 @@ func (db *DB) ListCurves(ctx context.Context, f lab.CurveFilter) (*lab.CurvePage
 	if err != nil {
 		return nil, err
 	}
-	rows, err := db.Pool.Query(ctx, sql, args...)
+	rows, err := db.q(ctx).Query(ctx, sql, args...)
 	if err != nil {
 		return nil, classify("list curves", err)
 	}

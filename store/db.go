@@ -139,6 +139,11 @@ const maxTxAttempts = 5
 // open). A serialization failure (40001) or deadlock (40P01) is retried up to
 // maxTxAttempts times, so fn must be safe to run again.
 func (db *DB) inTx(ctx context.Context, fn func(pgx.Tx) error) error {
+	if outer := txOf(ctx); outer != nil {
+		// Inside Atomically: a savepoint of the unit's transaction; the
+		// unit commits, and retries as a whole.
+		return savepoint(ctx, outer, fn)
+	}
 	var err error
 	for attempt := 1; attempt <= maxTxAttempts; attempt++ {
 		err = db.tryTx(ctx, fn)
@@ -149,11 +154,27 @@ func (db *DB) inTx(ctx context.Context, fn func(pgx.Tx) error) error {
 	return err
 }
 
-func (db *DB) tryTx(ctx context.Context, fn func(pgx.Tx) error) (err error) {
+func (db *DB) tryTx(ctx context.Context, fn func(pgx.Tx) error) error {
 	tx, err := db.Pool.Begin(ctx)
 	if err != nil {
 		return fmt.Errorf("store: begin: %w", err)
 	}
+	return runIn(ctx, tx, fn)
+}
+
+// savepoint runs fn in a savepoint of outer: its failure undoes its own
+// statements only, and the error goes up to the unit.
+func savepoint(ctx context.Context, outer pgx.Tx, fn func(pgx.Tx) error) error {
+	sub, err := outer.Begin(ctx)
+	if err != nil {
+		return fmt.Errorf("store: savepoint: %w", err)
+	}
+	return runIn(ctx, sub, fn)
+}
+
+// runIn runs fn in tx (a transaction or a savepoint), commits it when fn
+// returns nil and rolls it back otherwise, also on a panic.
+func runIn(ctx context.Context, tx pgx.Tx, fn func(pgx.Tx) error) (err error) {
 	defer func() {
 		if err != nil {
 			_ = tx.Rollback(context.WithoutCancel(ctx))

@@ -156,7 +156,7 @@ func (db *DB) GetExclusion(ctx context.Context, id string) (*lab.Exclusion, erro
 	e := &lab.Exclusion{CurveID: id}
 	var points []byte
 	var rr *string
-	err = db.Pool.QueryRow(ctx, `SELECT revision_of, points, reason, range_reason, actor, at FROM exclusions WHERE curve_id = $1`, id).
+	err = db.q(ctx).QueryRow(ctx, `SELECT revision_of, points, reason, range_reason, actor, at FROM exclusions WHERE curve_id = $1`, id).
 		Scan(&e.RevisionOf, &points, &e.Reason, &rr, &e.Actor, &e.At)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, lab.Errorf(lab.KindNotFound, "curve %s is not an exclusion revision", id)

@@ -20,7 +20,10 @@ INSERT INTO idempotency_keys (token_id, key, request_hash, run_id, response_stat
 VALUES ($1, $2, $3, $4, 201, $5)
 ON CONFLICT (token_id, key) DO NOTHING
 RETURNING true`
-	sqlSelectKey = `SELECT request_hash, response_body FROM idempotency_keys WHERE token_id = $1 AND key = $2`
+	// A key another write claimed (migration 000017) has no run's hash:
+	// the run is refused as a reuse.
+	sqlSelectKey = `SELECT CASE WHEN operation = 'createRun' THEN request_hash ELSE '' END, response_body
+FROM idempotency_keys WHERE token_id = $1 AND key = $2`
 )
 
 // errKeyReused is the refusal of a key used before with another body.

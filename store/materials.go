@@ -77,7 +77,7 @@ RETURNING `+materialColumns,
 
 // GetMaterial returns the standard material called code.
 func (db *DB) GetMaterial(ctx context.Context, code string) (*lab.Material, error) {
-	m, err := scanMaterial(db.Pool.QueryRow(ctx, sqlSelectMaterial+` WHERE code = $1`, code))
+	m, err := scanMaterial(db.q(ctx).QueryRow(ctx, sqlSelectMaterial+` WHERE code = $1`, code))
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, lab.Errorf(lab.KindNotFound, "no standard material is called %q", code)
 	}
@@ -107,7 +107,7 @@ func (db *DB) MaterialLineage(ctx context.Context, codes []string) (map[string]*
 }
 
 func (db *DB) queryMaterials(ctx context.Context, sql string, args ...any) ([]lab.Material, error) {
-	rows, err := db.Pool.Query(ctx, sql, args...)
+	rows, err := db.q(ctx).Query(ctx, sql, args...)
 	if err != nil {
 		return nil, classify("select standard materials", err)
 	}

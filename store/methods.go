@@ -200,7 +200,7 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*lab.Method, error) {
 
 // GetMethod returns the latest revision of method name.
 func (db *DB) GetMethod(ctx context.Context, name string) (*lab.Method, error) {
-	m, err := scanMethod(db.Pool.QueryRow(ctx, sqlSelectMethod+` WHERE name = $1 ORDER BY revision DESC LIMIT 1`, name))
+	m, err := scanMethod(db.q(ctx).QueryRow(ctx, sqlSelectMethod+` WHERE name = $1 ORDER BY revision DESC LIMIT 1`, name))
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, lab.Errorf(lab.KindNotFound, "method %q not found", name)
 	}
@@ -212,7 +212,7 @@ func (db *DB) GetMethod(ctx context.Context, name string) (*lab.Method, error) {
 
 // GetMethodRevision returns revision rev of method name.
 func (db *DB) GetMethodRevision(ctx context.Context, name string, rev int) (*lab.Method, error) {
-	m, err := scanMethod(db.Pool.QueryRow(ctx, sqlSelectMethod+` WHERE name = $1 AND revision = $2`, name, rev))
+	m, err := scanMethod(db.q(ctx).QueryRow(ctx, sqlSelectMethod+` WHERE name = $1 AND revision = $2`, name, rev))
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, lab.Errorf(lab.KindNotFound, "method %q revision %d not found", name, rev)
 	}
@@ -224,7 +224,7 @@ func (db *DB) GetMethodRevision(ctx context.Context, name string, rev int) (*lab
 
 // ListMethods returns the latest revision of every method, by name.
 func (db *DB) ListMethods(ctx context.Context) ([]lab.Method, error) {
-	rows, err := db.Pool.Query(ctx, `SELECT DISTINCT ON (name) `+methodColumns+` FROM methods ORDER BY name, revision DESC`)
+	rows, err := db.q(ctx).Query(ctx, `SELECT DISTINCT ON (name) `+methodColumns+` FROM methods ORDER BY name, revision DESC`)
 	if err != nil {
 		return nil, classify("list methods", err)
 	}

@@ -74,7 +74,7 @@ RETURNING `+personColumns, id, in.Login, strings.TrimSpace(in.FullName), roles, 
 
 // ListPeople lists every account, disabled ones too, by login.
 func (db *DB) ListPeople(ctx context.Context) ([]lab.Person, error) {
-	rows, err := db.Pool.Query(ctx, `SELECT `+personColumns+` FROM people ORDER BY login`)
+	rows, err := db.q(ctx).Query(ctx, `SELECT `+personColumns+` FROM people ORDER BY login`)
 	if err != nil {
 		return nil, classify("list people", err)
 	}
@@ -87,7 +87,7 @@ func (db *DB) ListPeople(ctx context.Context) ([]lab.Person, error) {
 
 // GetPerson returns the account of login.
 func (db *DB) GetPerson(ctx context.Context, login string) (*lab.Person, error) {
-	p, err := scanPerson(db.Pool.QueryRow(ctx, `SELECT `+personColumns+` FROM people WHERE login = $1`, login))
+	p, err := scanPerson(db.q(ctx).QueryRow(ctx, `SELECT `+personColumns+` FROM people WHERE login = $1`, login))
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, lab.Errorf(lab.KindNotFound, "no person with login %q", login)
 	}
@@ -151,7 +151,9 @@ func (db *DB) Authenticate(ctx context.Context, c lab.Credentials, maxFailures i
 		person *lab.Person
 		denied error
 	)
-	err := db.inTx(ctx, func(tx pgx.Tx) error {
+	// Its own transaction even inside a write's unit (Atomically): a
+	// failure is counted although the request that made it is refused.
+	err := db.inTx(withoutTx(ctx), func(tx pgx.Tx) error {
 		denied = nil
 		var hash string
 		var p lab.Person
@@ -219,7 +221,7 @@ func (db *DB) RecordOwners(ctx context.Context, curveID string) ([]string, error
 	if err != nil {
 		return nil, err
 	}
-	rows, err := db.Pool.Query(ctx, `
+	rows, err := db.q(ctx).Query(ctx, `
 SELECT DISTINCT COALESCE(t.owner, a.actor)
 FROM curves c JOIN runs r ON r.id = c.run_id,
      LATERAL (VALUES (r.received_by), (c.created_by)) AS a(actor)
@@ -374,7 +376,7 @@ func (db *DB) SignRecord(ctx context.Context, in lab.SignatureInput, actor strin
 // ListSignatures returns a record's signatures, withdrawn ones too, in the
 // order they were made; recordType "" returns those of every type.
 func (db *DB) ListSignatures(ctx context.Context, recordType, recordID string) ([]lab.Signature, error) {
-	rows, err := db.Pool.Query(ctx, `SELECT `+signatureColumns+` FROM signatures WHERE ($1 = '' OR record_type = $1) AND record_id = $2 ORDER BY signed_at, id`,
+	rows, err := db.q(ctx).Query(ctx, `SELECT `+signatureColumns+` FROM signatures WHERE ($1 = '' OR record_type = $1) AND record_id = $2 ORDER BY signed_at, id`,
 		recordType, recordID)
 	if err != nil {
 		return nil, classify("list signatures", err)
@@ -501,7 +503,7 @@ WHERE curve_id = $1 AND withdrawn_at IS NULL AND actor = $4`, sig.RecordID, who,
 // most f.Limit: a person's rows are those signed as "person:<login>" and
 // those of every token the person owns.
 func (db *DB) SearchAudit(ctx context.Context, f lab.AuditFilter) ([]lab.AuditEvent, error) {
-	rows, err := db.Pool.Query(ctx, `
+	rows, err := db.q(ctx).Query(ctx, `
 SELECT a.id, a.at, a.actor, a.action, a.entity_type, a.entity_id, a.detail
 FROM audit a
 WHERE ($1 = '' OR a.actor = 'person:' || $1

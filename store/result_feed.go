@@ -140,7 +140,7 @@ func (db *DB) ResultFeed(ctx context.Context, since string, limit int) (*lab.Fee
 	case limit < 0 || limit > lab.MaxFeedLimit:
 		return nil, lab.ParamError(lab.KindInvalid, lab.InQuery, "limit", "limit must be between 1 and %d", lab.MaxFeedLimit)
 	}
-	rows, err := db.Pool.Query(ctx, sqlResultFeed(limit+1), after)
+	rows, err := db.q(ctx).Query(ctx, sqlResultFeed(limit+1), after)
 	if err != nil {
 		return nil, classify("read result feed", err)
 	}

@@ -93,6 +93,12 @@ func resultsWhere(ctx context.Context, q pgx.Tx, where string, args ...any) ([]l
 // readOnly runs fn in a read-only repeatable-read transaction: one snapshot
 // for the reads of one answer.
 func (db *DB) readOnly(ctx context.Context, op string, fn func(pgx.Tx) error) error {
+	if outer := txOf(ctx); outer != nil { // inside Atomically: read the unit's own writes
+		if err := savepoint(ctx, outer, fn); err != nil {
+			return classify(op, err)
+		}
+		return nil
+	}
 	err := pgx.BeginTxFunc(ctx, db.Pool, pgx.TxOptions{IsoLevel: pgx.RepeatableRead, AccessMode: pgx.ReadOnly}, fn)
 	if err != nil {
 		return classify(op, err)

@@ -156,6 +156,11 @@ func prepareRun(ctx context.Context, in lab.RunInput, curves []lab.CurveInput) (
 		}
 		created.Curves = append(created.Curves, lab.CreatedCurve{ID: prepared[i].id, Analyte: c.Analyte, Verdict: prepared[i].verdict})
 	}
+	if in.CheckAnswer != nil {
+		if err := in.CheckAnswer(created); err != nil {
+			return nil, nil, err
+		}
+	}
 	body, err := json.Marshal(created)
 	if err != nil {
 		return nil, nil, fmt.Errorf("store: marshal run response: %w", err)

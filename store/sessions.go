@@ -106,7 +106,7 @@ func (db *DB) LookupSession(ctx context.Context, secret string) (lab.Session, er
 		scopes      []string
 		roles       []string
 	)
-	err := db.Pool.QueryRow(ctx, `
+	err := db.q(ctx).QueryRow(ctx, `
 SELECT t.id::text, COALESCE(t.name, p.login), COALESCE(t.scopes, '{}'), COALESCE(t.owner, 'person:' || p.login),
        COALESCE(p.roles, '{}'), COALESCE(p.full_name, ''), s.expires_at
 FROM ui_sessions s

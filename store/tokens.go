@@ -105,7 +105,7 @@ func (db *DB) IssueToken(ctx context.Context, in lab.TokenInput, actor string) (
 // keep working, and the service warns about them at start.
 func (db *DB) UnboundWriteTokens(ctx context.Context) (int, error) {
 	var n int
-	err := db.Pool.QueryRow(ctx, `
+	err := db.q(ctx).QueryRow(ctx, `
 SELECT count(*) FROM tokens
 WHERE revoked_at IS NULL AND instruments IS NULL
   AND 'runs:write' = ANY (scopes) AND NOT 'admin' = ANY (scopes)`).Scan(&n)
@@ -120,7 +120,7 @@ func (db *DB) RunInstrument(ctx context.Context, id string) (string, error) {
 		return "", err
 	}
 	var inst string
-	err = db.Pool.QueryRow(ctx, `SELECT instrument FROM runs WHERE id = $1`, id).Scan(&inst)
+	err = db.q(ctx).QueryRow(ctx, `SELECT instrument FROM runs WHERE id = $1`, id).Scan(&inst)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return "", lab.Errorf(lab.KindNotFound, "run %s not found", id)
 	}
@@ -135,7 +135,7 @@ func (db *DB) CurveInstrument(ctx context.Context, id string) (string, error) {
 		return "", err
 	}
 	var inst string
-	err = db.Pool.QueryRow(ctx, `SELECT r.instrument FROM curves c JOIN runs r ON r.id = c.run_id WHERE c.id = $1`, id).Scan(&inst)
+	err = db.q(ctx).QueryRow(ctx, `SELECT r.instrument FROM curves c JOIN runs r ON r.id = c.run_id WHERE c.id = $1`, id).Scan(&inst)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return "", lab.Errorf(lab.KindNotFound, "curve %s not found", id)
 	}
@@ -235,7 +235,7 @@ func liveToken(t lab.Principal, hash, stored []byte, revokedAt *time.Time, err e
 // lets a tool that issues tokens under its own actor name, such as the demo
 // loader, find and revoke the ones it issued before.
 func (db *DB) LiveTokensCreatedBy(ctx context.Context, actor string) ([]lab.Principal, error) {
-	rows, err := db.Pool.Query(ctx, `
+	rows, err := db.q(ctx).Query(ctx, `
 SELECT id, name, scopes FROM tokens
 WHERE created_by = $1 AND revoked_at IS NULL
 ORDER BY created_at, id`, actor)

@@ -31,7 +31,7 @@ func (db *DB) TrendSeries(ctx context.Context, f lab.TrendFilter) (curves []lab.
 	}
 	args = append(args, lab.MaxTrendPoints+1)
 	sql += fmt.Sprintf(` ORDER BY acquired_at, id LIMIT $%d`, len(args))
-	rows, err := db.Pool.Query(ctx, sql, args...)
+	rows, err := db.q(ctx).Query(ctx, sql, args...)
 	if err != nil {
 		return nil, false, classify("trend series", err)
 	}
@@ -62,7 +62,7 @@ func (db *DB) RecentApprovedSlopes(ctx context.Context, instrument, analyte stri
 	if limit < 1 || limit > lab.MaxTrendPoints {
 		return nil, lab.Errorf(lab.KindInvalid, "limit must be in [1, %d]", lab.MaxTrendPoints)
 	}
-	rows, err := db.Pool.Query(ctx, sqlRecentApprovedSlopes, instrument, analyte, before, limit)
+	rows, err := db.q(ctx).Query(ctx, sqlRecentApprovedSlopes, instrument, analyte, before, limit)
 	if err != nil {
 		return nil, classify("recent approved slopes", err)
 	}
@@ -106,7 +106,7 @@ func (db *DB) TrendSubjects(ctx context.Context) ([]lab.TrendSubject, error) {
 }
 
 func (db *DB) trendSubjects(ctx context.Context, maxCount int) ([]lab.TrendSubject, error) {
-	rows, err := db.Pool.Query(ctx, sqlTrendSubjects, maxCount)
+	rows, err := db.q(ctx).Query(ctx, sqlTrendSubjects, maxCount)
 	if err != nil {
 		return nil, classify("trend subjects", err)
 	}

@@ -3004,6 +3004,106 @@ type ListCurvesParams struct {
 	Cursor *PageCursor `form:"cursor,omitempty" json:"cursor,omitempty"`
 }
 
+// CreateExclusionParams defines parameters for CreateExclusion.
+type CreateExclusionParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// ReviewCurveParams defines parameters for ReviewCurve.
+type ReviewCurveParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// SignCurveParams defines parameters for SignCurve.
+type SignCurveParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// CreateVerificationParams defines parameters for CreateVerification.
+type CreateVerificationParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
 // GetCurveInForceParams defines parameters for GetCurveInForce.
 type GetCurveInForceParams struct {
 	Analyte Identifier `form:"analyte" json:"analyte"`
@@ -3012,10 +3112,60 @@ type GetCurveInForceParams struct {
 	At *Timestamp `form:"at,omitempty" json:"at,omitempty"`
 }
 
+// CreateMethodParams defines parameters for CreateMethod.
+type CreateMethodParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
 // GetMethodParams defines parameters for GetMethod.
 type GetMethodParams struct {
 	// Revision A specific revision; the latest when absent.
 	Revision *int `form:"revision,omitempty" json:"revision,omitempty"`
+}
+
+// CreatePersonParams defines parameters for CreatePerson.
+type CreatePersonParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
 }
 
 // ListResultEventsParams defines parameters for ListResultEvents.
@@ -3042,7 +3192,25 @@ type CreateRunParams struct {
 	Operator *Operator `form:"operator,omitempty" json:"operator,omitempty"`
 
 	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
-	// request safe; see the operation's description.
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
 	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
 }
 
@@ -3061,7 +3229,125 @@ type CreateRunCsvParams struct {
 	Operator *Operator `form:"operator,omitempty" json:"operator,omitempty"`
 
 	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
-	// request safe; see the operation's description.
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// CreateRunSamplesParams defines parameters for CreateRunSamples.
+type CreateRunSamplesParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// WithdrawSignatureParams defines parameters for WithdrawSignature.
+type WithdrawSignatureParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// CreateStandardMaterialParams defines parameters for CreateStandardMaterial.
+type CreateStandardMaterialParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
+	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
+}
+
+// CreateTokenParams defines parameters for CreateToken.
+type CreateTokenParams struct {
+	// IdempotencyKey A client-chosen key (a UUID is a good choice) that makes a retried
+	// write safe. Every POST that stores a record takes it (runs: see
+	// `createRun`, which also fingerprints CSV bodies). Keys are scoped to
+	// the token that sent them; one key names one request, whatever its
+	// route. The fingerprint is a SHA-256 of the operation, its path
+	// parameters and its body as parsed and encoded again (white space and
+	// member order do not matter; a `password` member is left out).
+	// - Same key, same operation and fingerprint, first request completed:
+	//   the **original answer** is sent again (same status, body and
+	//   `Location`) with `Idempotency-Replayed: true`, and nothing is
+	//   written; a first answer carries `Idempotency-Replayed: false`.
+	// - Same key on another operation or with another body: 422
+	//   (`header:Idempotency-Key`).
+	// - Same key while the first request is still in flight: the second
+	//   waits for it and then replays it.
+	// - A request that failed (4xx or 5xx) does not hold its key: the key
+	//   is stored in the transaction of the write, with its answer.
+	// - `createToken` is the exception: a token's secret is shown once and
+	//   never stored, so a replay is 409 naming the token issued under the
+	//   key (revoke it and issue another if its secret was lost).
 	IdempotencyKey *IdempotencyKey `json:"Idempotency-Key,omitempty"`
 }
 
@@ -3167,7 +3453,7 @@ type ServerInterface interface {
 	GetCurveAudit(ctx echo.Context, id CurveID) error
 	// CreateExclusion Exclude standards and refit, as a new revision
 	// (POST /v1/curves/{id}/exclusions)
-	CreateExclusion(ctx echo.Context, id CurveID) error
+	CreateExclusion(ctx echo.Context, id CurveID, params CreateExclusionParams) error
 	// GetCurvePlotPNG Plot of a curve, PNG
 	// (GET /v1/curves/{id}/plot.png)
 	GetCurvePlotPNG(ctx echo.Context, id CurveID) error
@@ -3185,19 +3471,19 @@ type ServerInterface interface {
 	GetCurveRecordPDF(ctx echo.Context, id CurveID) error
 	// ReviewCurve Approve or reject a curve
 	// (POST /v1/curves/{id}/review)
-	ReviewCurve(ctx echo.Context, id CurveID) error
+	ReviewCurve(ctx echo.Context, id CurveID, params ReviewCurveParams) error
 	// ListCurveSignatures Signatures of a curve
 	// (GET /v1/curves/{id}/signatures)
 	ListCurveSignatures(ctx echo.Context, id CurveID) error
 	// SignCurve Sign a curve
 	// (POST /v1/curves/{id}/signatures)
-	SignCurve(ctx echo.Context, id CurveID) error
+	SignCurve(ctx echo.Context, id CurveID, params SignCurveParams) error
 	// ListVerifications Verification standards of a curve
 	// (GET /v1/curves/{id}/verifications)
 	ListVerifications(ctx echo.Context, id CurveID) error
 	// CreateVerification Record a verification standard (ICV/CCV)
 	// (POST /v1/curves/{id}/verifications)
-	CreateVerification(ctx echo.Context, id CurveID) error
+	CreateVerification(ctx echo.Context, id CurveID, params CreateVerificationParams) error
 	// GetCurveInForce The curve in force at a moment
 	// (GET /v1/instruments/{instrument}/curves/current)
 	GetCurveInForce(ctx echo.Context, instrument Instrument, params GetCurveInForceParams) error
@@ -3212,7 +3498,7 @@ type ServerInterface interface {
 	ListMethods(ctx echo.Context) error
 	// CreateMethod Create a method, or a new revision of one
 	// (POST /v1/methods)
-	CreateMethod(ctx echo.Context) error
+	CreateMethod(ctx echo.Context, params CreateMethodParams) error
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx echo.Context, name Identifier, params GetMethodParams) error
@@ -3221,7 +3507,7 @@ type ServerInterface interface {
 	ListPeople(ctx echo.Context) error
 	// CreatePerson Open an account
 	// (POST /v1/people)
-	CreatePerson(ctx echo.Context) error
+	CreatePerson(ctx echo.Context, params CreatePersonParams) error
 	// DisablePerson Disable a person
 	// (POST /v1/people/{login}/disable)
 	DisablePerson(ctx echo.Context, login Login) error
@@ -3248,25 +3534,25 @@ type ServerInterface interface {
 	GetRunResults(ctx echo.Context, id RunID) error
 	// CreateRunSamples Add samples to a run and quantify them
 	// (POST /v1/runs/{id}/samples)
-	CreateRunSamples(ctx echo.Context, id RunID) error
+	CreateRunSamples(ctx echo.Context, id RunID, params CreateRunSamplesParams) error
 	// GetSampleResults Every result for a LIMS sample id
 	// (GET /v1/samples/{sample_id})
 	GetSampleResults(ctx echo.Context, sampleID Identifier) error
 	// WithdrawSignature Withdraw a signature
 	// (POST /v1/signatures/{id}/withdrawal)
-	WithdrawSignature(ctx echo.Context, id UUID) error
+	WithdrawSignature(ctx echo.Context, id UUID, params WithdrawSignatureParams) error
 	// ListStandardMaterials All standard materials
 	// (GET /v1/standard-materials)
 	ListStandardMaterials(ctx echo.Context) error
 	// CreateStandardMaterial Record a standard material
 	// (POST /v1/standard-materials)
-	CreateStandardMaterial(ctx echo.Context) error
+	CreateStandardMaterial(ctx echo.Context, params CreateStandardMaterialParams) error
 	// GetStandardMaterial One standard material
 	// (GET /v1/standard-materials/{code})
 	GetStandardMaterial(ctx echo.Context, code Identifier) error
 	// CreateToken Issue a token
 	// (POST /v1/tokens)
-	CreateToken(ctx echo.Context) error
+	CreateToken(ctx echo.Context, params CreateTokenParams) error
 	// DeleteToken Revoke a token
 	// (DELETE /v1/tokens/{id})
 	DeleteToken(ctx echo.Context, id UUID) error
@@ -3475,8 +3761,28 @@ func (w *ServerInterfaceWrapper) CreateExclusion(ctx echo.Context) error {
 		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
 	}
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateExclusionParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreateExclusion(ctx, id)
+	err = w.Handler.CreateExclusion(ctx, id, params)
 	return err
 }
 
@@ -3571,8 +3877,28 @@ func (w *ServerInterfaceWrapper) ReviewCurve(ctx echo.Context) error {
 		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
 	}
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params ReviewCurveParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.ReviewCurve(ctx, id)
+	err = w.Handler.ReviewCurve(ctx, id, params)
 	return err
 }
 
@@ -3603,8 +3929,28 @@ func (w *ServerInterfaceWrapper) SignCurve(ctx echo.Context) error {
 		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
 	}
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params SignCurveParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.SignCurve(ctx, id)
+	err = w.Handler.SignCurve(ctx, id, params)
 	return err
 }
 
@@ -3635,8 +3981,28 @@ func (w *ServerInterfaceWrapper) CreateVerification(ctx echo.Context) error {
 		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
 	}
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateVerificationParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreateVerification(ctx, id)
+	err = w.Handler.CreateVerification(ctx, id, params)
 	return err
 }
 
@@ -3717,8 +4083,28 @@ func (w *ServerInterfaceWrapper) ListMethods(ctx echo.Context) error {
 func (w *ServerInterfaceWrapper) CreateMethod(ctx echo.Context) error {
 	var err error
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateMethodParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreateMethod(ctx)
+	err = w.Handler.CreateMethod(ctx, params)
 	return err
 }
 
@@ -3760,8 +4146,28 @@ func (w *ServerInterfaceWrapper) ListPeople(ctx echo.Context) error {
 func (w *ServerInterfaceWrapper) CreatePerson(ctx echo.Context) error {
 	var err error
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreatePersonParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreatePerson(ctx)
+	err = w.Handler.CreatePerson(ctx, params)
 	return err
 }
 
@@ -3993,8 +4399,28 @@ func (w *ServerInterfaceWrapper) CreateRunSamples(ctx echo.Context) error {
 		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
 	}
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateRunSamplesParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreateRunSamples(ctx, id)
+	err = w.Handler.CreateRunSamples(ctx, id, params)
 	return err
 }
 
@@ -4025,8 +4451,28 @@ func (w *ServerInterfaceWrapper) WithdrawSignature(ctx echo.Context) error {
 		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter id: %s", err))
 	}
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params WithdrawSignatureParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.WithdrawSignature(ctx, id)
+	err = w.Handler.WithdrawSignature(ctx, id, params)
 	return err
 }
 
@@ -4043,8 +4489,28 @@ func (w *ServerInterfaceWrapper) ListStandardMaterials(ctx echo.Context) error {
 func (w *ServerInterfaceWrapper) CreateStandardMaterial(ctx echo.Context) error {
 	var err error
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateStandardMaterialParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreateStandardMaterial(ctx)
+	err = w.Handler.CreateStandardMaterial(ctx, params)
 	return err
 }
 
@@ -4068,8 +4534,28 @@ func (w *ServerInterfaceWrapper) GetStandardMaterial(ctx echo.Context) error {
 func (w *ServerInterfaceWrapper) CreateToken(ctx echo.Context) error {
 	var err error
 
+	// Parameter object where we will unmarshal all parameters from the context
+	var params CreateTokenParams
+
+	headers := ctx.Request().Header
+	// ------------- Optional header parameter "Idempotency-Key" -------------
+	if valueList, found := headers[http.CanonicalHeaderKey("Idempotency-Key")]; found {
+		var IdempotencyKey IdempotencyKey
+		n := len(valueList)
+		if n != 1 {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Expected one value for Idempotency-Key, got %d", n))
+		}
+
+		err = runtime.BindStyledParameterWithOptions("simple", "Idempotency-Key", valueList[0], &IdempotencyKey, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationHeader, Explode: false, Required: false, Type: "string", Format: ""})
+		if err != nil {
+			return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter Idempotency-Key: %s", err))
+		}
+
+		params.IdempotencyKey = &IdempotencyKey
+	}
+
 	// Invoke the callback with all the unmarshaled arguments
-	err = w.Handler.CreateToken(ctx)
+	err = w.Handler.CreateToken(ctx, params)
 	return err
 }
 
@@ -5482,8 +5968,9 @@ func (response GetCurveAudit503ApplicationProblemPlusJSONResponse) VisitGetCurve
 }
 
 type CreateExclusionRequestObject struct {
-	ID   CurveID `json:"id"`
-	Body *CreateExclusionJSONRequestBody
+	ID     CurveID `json:"id"`
+	Params CreateExclusionParams
+	Body   *CreateExclusionJSONRequestBody
 }
 
 type CreateExclusionResponseObject interface {
@@ -7060,8 +7547,9 @@ func (response GetCurveRecordPDF503ApplicationProblemPlusJSONResponse) VisitGetC
 }
 
 type ReviewCurveRequestObject struct {
-	ID   CurveID `json:"id"`
-	Body *ReviewCurveJSONRequestBody
+	ID     CurveID `json:"id"`
+	Params ReviewCurveParams
+	Body   *ReviewCurveJSONRequestBody
 }
 
 type ReviewCurveResponseObject interface {
@@ -7615,8 +8103,9 @@ func (response ListCurveSignatures503ApplicationProblemPlusJSONResponse) VisitLi
 }
 
 type SignCurveRequestObject struct {
-	ID   CurveID `json:"id"`
-	Body *SignCurveJSONRequestBody
+	ID     CurveID `json:"id"`
+	Params SignCurveParams
+	Body   *SignCurveJSONRequestBody
 }
 
 type SignCurveResponseObject interface {
@@ -8170,8 +8659,9 @@ func (response ListVerifications503ApplicationProblemPlusJSONResponse) VisitList
 }
 
 type CreateVerificationRequestObject struct {
-	ID   CurveID `json:"id"`
-	Body *CreateVerificationJSONRequestBody
+	ID     CurveID `json:"id"`
+	Params CreateVerificationParams
+	Body   *CreateVerificationJSONRequestBody
 }
 
 type CreateVerificationResponseObject interface {
@@ -9586,7 +10076,8 @@ func (response ListMethods503ApplicationProblemPlusJSONResponse) VisitListMethod
 }
 
 type CreateMethodRequestObject struct {
-	Body *CreateMethodJSONRequestBody
+	Params CreateMethodParams
+	Body   *CreateMethodJSONRequestBody
 }
 
 type CreateMethodResponseObject interface {
@@ -10327,7 +10818,8 @@ func (response ListPeople503ApplicationProblemPlusJSONResponse) VisitListPeopleR
 }
 
 type CreatePersonRequestObject struct {
-	Body *CreatePersonJSONRequestBody
+	Params CreatePersonParams
+	Body   *CreatePersonJSONRequestBody
 }
 
 type CreatePersonResponseObject interface {
@@ -12617,8 +13109,9 @@ func (response GetRunResults503ApplicationProblemPlusJSONResponse) VisitGetRunRe
 }
 
 type CreateRunSamplesRequestObject struct {
-	ID   RunID `json:"id"`
-	Body *CreateRunSamplesJSONRequestBody
+	ID     RunID `json:"id"`
+	Params CreateRunSamplesParams
+	Body   *CreateRunSamplesJSONRequestBody
 }
 
 type CreateRunSamplesResponseObject interface {
@@ -13172,8 +13665,9 @@ func (response GetSampleResults503ApplicationProblemPlusJSONResponse) VisitGetSa
 }
 
 type WithdrawSignatureRequestObject struct {
-	ID   UUID `json:"id"`
-	Body *WithdrawSignatureJSONRequestBody
+	ID     UUID `json:"id"`
+	Params WithdrawSignatureParams
+	Body   *WithdrawSignatureJSONRequestBody
 }
 
 type WithdrawSignatureResponseObject interface {
@@ -13698,7 +14192,8 @@ func (response ListStandardMaterials503ApplicationProblemPlusJSONResponse) Visit
 }
 
 type CreateStandardMaterialRequestObject struct {
-	Body *CreateStandardMaterialJSONRequestBody
+	Params CreateStandardMaterialParams
+	Body   *CreateStandardMaterialJSONRequestBody
 }
 
 type CreateStandardMaterialResponseObject interface {
@@ -14232,7 +14727,8 @@ func (response GetStandardMaterial503ApplicationProblemPlusJSONResponse) VisitGe
 }
 
 type CreateTokenRequestObject struct {
-	Body *CreateTokenJSONRequestBody
+	Params CreateTokenParams
+	Body   *CreateTokenJSONRequestBody
 }
 
 type CreateTokenResponseObject interface {
@@ -14334,6 +14830,34 @@ func (response CreateToken403ApplicationProblemPlusJSONResponse) VisitCreateToke
 		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
 	}
 	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type CreateToken409ApplicationProblemPlusJSONResponse struct {
+	ConflictApplicationProblemPlusJSONResponse
+}
+
+func (response CreateToken409ApplicationProblemPlusJSONResponse) VisitCreateTokenResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(409)
 	_, err := buf.WriteTo(w)
 	return err
 }
@@ -15459,10 +15983,11 @@ func (sh *strictHandler) GetCurveAudit(ctx echo.Context, id CurveID) error {
 }
 
 // CreateExclusion operation middleware
-func (sh *strictHandler) CreateExclusion(ctx echo.Context, id CurveID) error {
+func (sh *strictHandler) CreateExclusion(ctx echo.Context, id CurveID, params CreateExclusionParams) error {
 	var request CreateExclusionRequestObject
 
 	request.ID = id
+	request.Params = params
 
 	var body CreateExclusionJSONRequestBody
 	var err error
@@ -15655,10 +16180,11 @@ func (sh *strictHandler) GetCurveRecordPDF(ctx echo.Context, id CurveID) error {
 }
 
 // ReviewCurve operation middleware
-func (sh *strictHandler) ReviewCurve(ctx echo.Context, id CurveID) error {
+func (sh *strictHandler) ReviewCurve(ctx echo.Context, id CurveID, params ReviewCurveParams) error {
 	var request ReviewCurveRequestObject
 
 	request.ID = id
+	request.Params = params
 
 	var body ReviewCurveJSONRequestBody
 	var err error
@@ -15728,10 +16254,11 @@ func (sh *strictHandler) ListCurveSignatures(ctx echo.Context, id CurveID) error
 }
 
 // SignCurve operation middleware
-func (sh *strictHandler) SignCurve(ctx echo.Context, id CurveID) error {
+func (sh *strictHandler) SignCurve(ctx echo.Context, id CurveID, params SignCurveParams) error {
 	var request SignCurveRequestObject
 
 	request.ID = id
+	request.Params = params
 
 	var body SignCurveJSONRequestBody
 	var err error
@@ -15801,10 +16328,11 @@ func (sh *strictHandler) ListVerifications(ctx echo.Context, id CurveID) error {
 }
 
 // CreateVerification operation middleware
-func (sh *strictHandler) CreateVerification(ctx echo.Context, id CurveID) error {
+func (sh *strictHandler) CreateVerification(ctx echo.Context, id CurveID, params CreateVerificationParams) error {
 	var request CreateVerificationRequestObject
 
 	request.ID = id
+	request.Params = params
 
 	var body CreateVerificationJSONRequestBody
 	var err error
@@ -15994,8 +16522,10 @@ func (sh *strictHandler) ListMethods(ctx echo.Context) error {
 }
 
 // CreateMethod operation middleware
-func (sh *strictHandler) CreateMethod(ctx echo.Context) error {
+func (sh *strictHandler) CreateMethod(ctx echo.Context, params CreateMethodParams) error {
 	var request CreateMethodRequestObject
+
+	request.Params = params
 
 	var body CreateMethodJSONRequestBody
 	var err error
@@ -16089,8 +16619,10 @@ func (sh *strictHandler) ListPeople(ctx echo.Context) error {
 }
 
 // CreatePerson operation middleware
-func (sh *strictHandler) CreatePerson(ctx echo.Context) error {
+func (sh *strictHandler) CreatePerson(ctx echo.Context, params CreatePersonParams) error {
 	var request CreatePersonRequestObject
+
+	request.Params = params
 
 	var body CreatePersonJSONRequestBody
 	var err error
@@ -16365,10 +16897,11 @@ func (sh *strictHandler) GetRunResults(ctx echo.Context, id RunID) error {
 }
 
 // CreateRunSamples operation middleware
-func (sh *strictHandler) CreateRunSamples(ctx echo.Context, id RunID) error {
+func (sh *strictHandler) CreateRunSamples(ctx echo.Context, id RunID, params CreateRunSamplesParams) error {
 	var request CreateRunSamplesRequestObject
 
 	request.ID = id
+	request.Params = params
 
 	var body CreateRunSamplesJSONRequestBody
 	var err error
@@ -16438,10 +16971,11 @@ func (sh *strictHandler) GetSampleResults(ctx echo.Context, sampleID Identifier)
 }
 
 // WithdrawSignature operation middleware
-func (sh *strictHandler) WithdrawSignature(ctx echo.Context, id UUID) error {
+func (sh *strictHandler) WithdrawSignature(ctx echo.Context, id UUID, params WithdrawSignatureParams) error {
 	var request WithdrawSignatureRequestObject
 
 	request.ID = id
+	request.Params = params
 
 	var body WithdrawSignatureJSONRequestBody
 	var err error
@@ -16509,8 +17043,10 @@ func (sh *strictHandler) ListStandardMaterials(ctx echo.Context) error {
 }
 
 // CreateStandardMaterial operation middleware
-func (sh *strictHandler) CreateStandardMaterial(ctx echo.Context) error {
+func (sh *strictHandler) CreateStandardMaterial(ctx echo.Context, params CreateStandardMaterialParams) error {
 	var request CreateStandardMaterialRequestObject
+
+	request.Params = params
 
 	var body CreateStandardMaterialJSONRequestBody
 	var err error
@@ -16580,8 +17116,10 @@ func (sh *strictHandler) GetStandardMaterial(ctx echo.Context, code Identifier) 
 }
 
 // CreateToken operation middleware
-func (sh *strictHandler) CreateToken(ctx echo.Context) error {
+func (sh *strictHandler) CreateToken(ctx echo.Context, params CreateTokenParams) error {
 	var request CreateTokenRequestObject
+
+	request.Params = params
 
 	var body CreateTokenJSONRequestBody
 	var err error
@@ -16705,631 +17243,642 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P1fjxtJlicKfhVb9i2IrHIyGKFQKsVAARMZkqrUJaWUEcrMnklm0S3oxqC3nGZMN2dEsDK16L0NDPq+",
-	"9jw0cB8WC9zdvc89wCJnsW9Z2LeL7s+w9UkW54+ZmzudDDIUUmbNqNGVCrq7/Tc7dv7+zvetsZnNjVa6",
-	"sK3B962pkonK8c9TWajn6Swt8D/wJFF2nKfzIjW6NWi9nipRmDdK37MiV98tlC3EdwtTyIGYmisxk3rp",
-	"nluRFlacL8ZvVCGmJkusuJoqLSaLLBvqdjFV4nyR26ITibnKRZLLSdFNVTHpTotiLudpN5eFyqAfXe5h",
-	"t/9JT5wpXQijhbpU+XKopbZXKheFEdL36CotpkKKS5mlCXW3N9StqGXHUzWTMKqZvE5ni1lrcLB/+PDw",
-	"0/ufHD6MWrNU08N+1CqWc9UatFJdqAuVt96+jcq5eWWydLxsnhycDDHHLyIRDxf9/v0xDgL/VEdXv6Vn",
-	"V6lOzBU9jAcixm/icvJgTmL6KB5qq8ZGJ1bwtMGc3rPCpn9SwlyqHKc6V5M0ywTMWicSqnfRE/FBv390",
-	"9dvDWExMPtQP+mX9UlCdbrJwLYSZiIN+vz5bc1kUKoch/vGbfvfRt785uvot/fE/tfxU2SJP9UV1pk7V",
-	"TKYaHq9M1qnrSOG2lJjJpbAFjMEqnQhtriJRTFMrjFZibBa6UAnNwNXUZGqo/WAyNSlEqoMd1zkSiRrn",
-	"SlplaYhKjqd+h0id8HzZoZaFKMJ9LQvVE33YY1IcHjy6071zqqxqOFdntL6RyM1CJyoRi3kkFrpIs0rX",
-	"+DSlFk+RkBcy1UPdjn31XT/jsVDfLWRmRfAS/xt3jkSfjmLqq7qTMaoiXx5PCpWvHR8c0yuZFuJcTUyu",
-	"RA5FUn3Ra0UtWJo0V0lrUOQLVenMpnbfRq25zOVMFUzCThb5pXr2uPl4juHlPSvSBJpM4fFcFtNW1NJy",
-	"hhUnG7vyP+Vq0hq0/mavpKB79Nbuffnls8c4Ec8SNZubQunx8g+qgU4ci3GWKl10x1NjlRZv1FK0pYDy",
-	"sB5SXBiTiPHUpGPVEcVUFmIm3yiLFK7IU5X4rS+snKgjYZXCfWLmKpfQyj0rgjZpdXG0REnL8QZ97UJn",
-	"a5vgudIXxbQ12D/4FNff/44qROG4+59k90/97qPeaND99vv9aP/g07fNtOGZtkW+mCm95nZJ/XuRJkoX",
-	"6SRVeSSkFXNjgQDgYUZ6t9B23SqWjdx2NZ/5xrHbr+SFOlnk1uTN3Y61ui5GY/wiBjIKyzHP1WVqFlbM",
-	"5YU6EvLcwrAmJse3kxQoLrzyo/huofJlOQyqrrVtl7l/eBYXet0RyBf6/R6At1Dezo22Cg/kZzJhYg+/",
-	"xkYXvPhyPs/SMe7XvXluzjM1+83fW+jo91u2+IpKUaPVob6Q2cTkM5UIu9SFvI7EVW70hYAdKUxO7MFC",
-	"CbMobJrQ8aFqB2Lmyg713569/DyCyxJ3MJDNXAkp9GJ2rnJxrjKjL2wkpBYL/UabKy0mqcoSKMIHRMDN",
-	"m0t9ocRlajJZKHyLSy086aJjnhhlhTaFgKlZ0rFt4s66nj1rmh0usVdj5sJrqFvyMFvVwJ9Xqqhc7lvV",
-	"UpaoVcR34paVwNe44idGT7J0/EH3FR4hZc0iH8NFYgtZKDjS52lCvIyjzG1Jt40AIqCuVCJkliuZLCMh",
-	"h5peAS0zi0JIMUmLqM7B4paUMyXSkkjjZUFMElz9kyy9mBadjzvlhp3yFBcoUfpDbxXibDM5fmNJYhF2",
-	"bOZKZCleZqkW8XXXkdsuvrNx7+NiblrMZ7pQuZbZkzw3+YdcUNewUNByT8ACn5tkKaxcgpSSLcWwlVY+",
-	"GrZQ1ggJA129H9d37fp+boqnIAZ96LOqJbALjriXl7G6Tm3xcc02rtkrucyMTF4b81zmF+pDLx2eQnU9",
-	"VopvYavyS5Xfs2Js9CS9WOQqEahi+biOG9fxTOWX6Vh9qeWlTDN5nn3wpUxkIc+lVWIsNZy+c6CccjxV",
-	"XiNEq5uOFUjLdrooCmDNE3OlI2S22xPk76/ytED5ObUoVUo9ppLKQo0JU+xzNZYLq1Ck9G2noBYC5k4n",
-	"5x/58E2bhvU+Xa/42Vi4VBHh6r825oXUS6cL/FmYs0CTncsC95RXqX6kGO9x8b/UclFMTZ7+SX3Qq/5F",
-	"am2qL6JSzI+88G5yENfMG5WIcyVzlbP54OMWWL8Fvv766+7xopgqXcCaqVW1U/wZzmXMtgYtYuSNYyGL",
-	"Ik/PF4US7dOnJ+KThw/6nc264LpCkTbSPDdjZS1cV090kRbLD7mfvlZZ1mVdU6rni4J0Oee5km9QZ7vI",
-	"lNMI8sV1xDNgY2Q6LRonhtpMJkoncJmhEqmUHBaZ+ngJ3cC5fKntYj43eaGSFypJ5WvcKR9aMYQXyT0r",
-	"TqjVLvQCrhTgZIyuaemFHI/VvLAfycuGlX3rjj/OzTHOmNRj9QyOGjySSZLCbMrsVQ5TW6TKtgYTmVlV",
-	"X6OytCimubJolj4i0yCsDtoRQSFXoL0FFkvpi1QrtKdM5CIrRNtOSc2bZaTAMRo/nKliahIkX/OgH9+3",
-	"zuX4zWgss/EoM1ejwmQqhx6M5qS4VNfjbGHTS/UiMHMBOZFFa9BKzAJ48Ki0yO33SzMYqaFhmstGZqke",
-	"zaW1o0kuxzTu7zfW12jYa6r5PXV9ambGjlUibZGO02I5ktl8euNJPMaP3kakb4Fl3bEc6ORGZjKapLuW",
-	"nEmdyMLkDaa9k6kCTd8VGPbERKbZIqd/aTNdqjxJx8UR/jDFVOVWyFwJmVym1uRLtMkUamZvNPVAO5/L",
-	"maL+XD+jQvvl/Mo8l8tW1Fro9LuF4vdwm/IAVLbzqK9Hub3jtYfNmqlLldmK1flBP9iUB6tWXyqYj+x3",
-	"C5kT9/gOO9wsiixV+WhszBs7Su5udK5iWyzQmvgndYeVg/lzxyW8VHk64Qtw9TRXd/IPv3r8AxjJgiIk",
-	"D8s8Ee1nJ1/tnZx81SGfDXD9QV8EW4DYNNTazFJQgaKJrSceM+k86EdCggAgvjwTT14di7Ovu58efiJe",
-	"IOkUn/b7/cdDPZZZes4XZNg8nZpMnpscT989yzRXWMXeRuaKbd13McVv/RNz/vdqjDdreYGUN+sO988T",
-	"tAD4qwduj4nJxypyt4st75WdL5LV4b37LbHLbbBF6fWkfovCDYR+i1KNZH6LchUivztNrlDhBpK7VQ8q",
-	"BHebEhVqeiuiuQ1x3KFUjfJtUbJK1rYosAtRAx6dCFuWGTDJgqawkcRZ0U4CqrWeXiHDd2M334Yy7Tfh",
-	"QtW2RtOGXXtu1h/HaCOx2EwI6vukuhNXz2FlzZqXfnUbhQds4xp+20SF3fao+1XZ9EJjRcDh4wT3Whvp",
-	"fr/3IGQOev1+f79hjx1rmS0LdSO1r9Jr8qjZ3s0oan23kLq48TqnznyB375FDu/GMl/CN/VdiP3j8o3T",
-	"HDa0o6ClhaTS4GvkLKKefyD3SxDWQdkB6g3bE1+zcmj188K5LQ11eT6hDitn80xZMZZ5vhRxakfe8ygW",
-	"5wode+LyERkPyPUCHB/TolAJy29D7b4TyHuI49H13vEotZ6zgbLloMZGj5Uu8FsdYW8k94fZ/2dnQZ1Z",
-	"qmzF14hce0V7DmdJF05B5Jgfk9t7YqakFs/OhKvlyLEJQ/1J/y//8F/2Dx6IX0VibGYzo8Wzk1fdF2di",
-	"jucYeIpJbmZipmYmX3ZwvJm8uFA0+6CJm6osISM2rQX4O5FTVGrF9f/xP/fFn/9FJGm2QMr4538RE2Lq",
-	"TLaYKfHnH91w5cwsdAEPknwpHB0B5qbwdaf6Yqhhp5UurtANcFGF3c/9qDB3cjzOVZIWPMO5ulhk8A4L",
-	"nr18BeNWQ41udEdClnWJucqt0ex44/wucmUXWUHsYfWcJmqczmRmG5yUoauiMGREQu929zGalJRMYOFK",
-	"slMIMjbaXkhl9vubnWfh9BQKZ22UOZVPA9XaJMS4UzNyJ2Q3ypPaEe3I0TS9mK7nOUKOuX9Tl3ydcAXd",
-	"SZVujfMbubEv3JdnpKX22/DWM1zWsD3FjVrB3hjx3ljdZ05Aui/a6Jgdu10Ww1Ekv9FOdUuF99Z+oz/2",
-	"Kj1fJGnx5FJtQc2rB6SUEGqab9BzX0krEqOVCznIF7o3zpUsVBJHIkZq2yNSW/6W83luLsMnuYJuqgSd",
-	"n2pa/gh60OR5C9y2o5zkaYWqdwkVNddTW3hZqG6RzlTTt4kqZJo1M5FzmRfpeJHJ3EYi1eNsgWp76Zz9",
-	"crQqSmt0r9ELOryGZdFyA4xangfj1r9dt47PzcWOq6guXcDPVuJMsFtW5JnaCLjmpr6eSLw97JrNQxcE",
-	"EGbc6DphXfmAVePIyLkLOHDl8PfgOE8LlaeSLrv54jxLLbgKXCzSBAo3KA2q98pQVy8WVinA/QJKYDHP",
-	"1VglCquixRXny4bbZqh9TEOmpGV7jZ/pld01S7VT2q1KiyhK7ri8sISLQiWrM/0UPqeID2QxoHKIp8kS",
-	"wQ4WrizOlhYxCAQqQeKDbeHMxLQlY/J2u5oug619bkympK4em5UxZxuCykqdCG4F6JHM2d3/SGgId6mN",
-	"YCphq2j05r7Cvws/kE1C2TeOpkctqLb17WaV7tdTVUxVHuj4ORoDeQLqCpDrRFVVvKjevUqt4hGFOt7V",
-	"WdtGVqgoGGiJgmkOKiMHtsah5MpbFOm4FaVlA/gpPEeNpNPCgQH5c80CYjSK+wbWZKakxcOKPGW4hrdf",
-	"qWYJpuya22N+fqLyXFRFTp6jjYS2nPCmGB5ceb58AmpFsX8DEZdCPtxyJOXH0VDHgYQPb+rCPTzz8jlQ",
-	"ptRoeOYlcqwkV/DmUnl+b0Q29UjEXkDHUiAFLWQ2AiEdHrAkbrGWmdGmMDodw5skTydF3BPBU9H2cwZk",
-	"j3dKR/AiWJKcSKIqDJAS2DDjIlsKXwm506DMY/I3KPBJfaF6rkF0tnKrJGQhUn2hbDHAIlpd+aAtm5l5",
-	"eRvQeZSaxIHH3sKODvNlEBG8LaW2g76YGVsIIOq6GGrHh1AbNiod779WtrgA4ZMYExJSRdsqNdTx7568",
-	"FnuX+3tFrnRi405PPKuccbHQmbI2pBlZSiGxQtqh9pMa8SGEwt74SGGyCsNap1KL/b6o9XOo0Sc1cu1Q",
-	"BeVStYsyvM/JdqJGIiFoIPbi9CjVo0QWKnbEt7oYJe3NF5p9FlDT7yoQM4n3cGaPglHfsyJW13M4rn6f",
-	"2pjpZ1oMdbXL5f4yuZ/LCHuNxBbmkPX7ejFbo0irqtAalGeh+ouPVytqhfquNWcr1H3hV8HJKlVc2BO3",
-	"91tRCzc5EanqVCNt0pcqv1AaKRGwGqkFIXCem0maqYAoMR2OWtddGHv3Uua4CjAJSKZeQHAeTwQ9cLOB",
-	"v57L8ZuXk6dp4R78fnVW8PlncvzmpDIz+Pj0zM8O/eYpOuNRPeEJwpfPglnir2mqTmmm8NnLcrqov8Gc",
-	"4YPHPHH4w7Vjn+nHNHf4+KQygfjolZvFV24SKVKo1NY0UXNnsaqpdViHURIQEP1u0CmCGOv/7waZEiKY",
-	"UuQuG27VK9O1KWhKxv4rUmoCrcOdeCkzG4l+7wEQ337v0aNHN+o7Hz16VNF4PmjuVZGbDP0w7I6av7Op",
-	"uprKHLl1qIR8KK1oPzt7KR5++rDfPeg4XsBHP4HPbZZqtWrzInkIlRJb2gO4RGautiyA6622/PhK5hpU",
-	"ADt0yBXZtkc1Hoe7V62n1pHKqKPKpH1bMlPM2ARsLy/06SJrZHHKOxDYxbb/qQohs14kTrJU98TJVM16",
-	"4uChaO8/+nS/Iw4f3e8MRLzfPbDxEBl0Uiqeq6XRifjpXw/gum7zADpH8Ol9G6MDjv/mvjh7fCTiA6hE",
-	"FFcGOARt1XgBRMd95u97rBE32pGIT7uHVEYERSKofqjlublU4jf4vfOuQ0YdQzmvxF/+6Z8PqOXD7r4F",
-	"2IRFLlZbHmrf9H7Y9H7/OhaF0pUi7B+EX6P610w881K9zWDKWlELpqMVtQ7oFwynFbWgP/Cuf73lrQCL",
-	"uk81wF/33V8H/tnpofvrcN9/17+mnbEm1vnlXH63UBCFaFUhKEBZtOH8fnK4yMszPQeSoS+c0srFjT/Y",
-	"P9gqjnzUbcSWiCi6f1djhNP0k6ZJfO15GSWhk7YqDPPHEjZ5Bkzy2KjJJB2nShfIQVe5AhuTdDw2lzJP",
-	"pR6rGH161GxeLCNikOloW9JOaQW1QzP4HRzGSMQsNyL/FYPHUBxxvehShFL3UIPU3aDBlmOiFyNZNEp9",
-	"JesGgrL7unpXbFKFydL+tfJuHGh4Nkqv7jsog2PazbLeZFUPV2Z14M+0mJlEZV1AwoBnwuSJygcCrhqZ",
-	"i2/O+5E43/824gcjk6cXqRbf4LPvFjLJJciy/F0kzg++PRLa6C5XgLVbYKzjF/Anq0bazB9rEWuj6due",
-	"j/Qe4du4U/H12s4dgBVGD5omYj0fcdLAPSCMDIlGaMFwKgDPVWxl1Y5a5aZvate9A+EgT69dw+GqRcL+",
-	"9F/bf/f/+3/9w9d/1/nL/+X/89P/GwxEVzh7wXe0cpUpu7O52zyxpMnefLA4mFt6kyLaJguz0xlLJk0g",
-	"OcQ3i0Rd5AosiBMxyZVKzCwSGm4rMQ+UNYFBidxWR5cqt40c7+vA1ggng74nAuXFP0KpKJxmH7/f2+/1",
-	"e/1mLT17XRl904F+4j98G7XALGmbtJbjAmwf6I5LHaHusbJNG6dr29pr8mlaPM3kRRMlmSp5mSpbkDR5",
-	"U0UoaZ1NZY6quDTZDhkjCnFJGvWj3nenZh5KbZHqcUHn1zqpZEKiyGbLYuaZ+I0Doq/gNKDg3tg9ejUC",
-	"Lfj6TUUfCfdR8/kALqHS9f2mriN5vannSHjha910fPh+LydMtHGTJmj3V04jgtBSnZsn05PzLaBYLtXn",
-	"/mvQ15q08ZIil0CvRmGWJHIzZXLhOhyJi9ws5hCatGRKnmq6zG1aXm/b+xBDH19Bt5oORMVPrB7wAqAT",
-	"KqkSaLhECpXPUk0Upb0gSZq9rCpXbGdX/TxqDG8a0Cl+9DbQzNhkA031c56oy5T6bNvLvetO5Fj2f/vf",
-	"rsRvhRZXOGBhxzJTO/ccbUY3dp2+4u9RB2TwPpBZ9nLSGnyzDX35ts74vsqVZbQ8qYWnzv5wVvxhyJKb",
-	"K954ZAcgh7zR9hSuxhs3IIG5WacP1vAEaNdd2c3vetPbQhaL7c7FGX0auFdVh/HlyZcvxNiU0twazyCv",
-	"MFqhpo45Gm1F5r7irz2547vvxnL8GeghcBePxlInaSILtZYY+S9A5z42uWK1eCwXhYm9+xDKMNdAzbFi",
-	"tH9n6Rsl2ij6wK4jbTVMUcA7rCnc2ZpwEf05cb1sol5urKAe1M06v9+bK26cYjDwdCfM62jYaVlqFXr/",
-	"2MUM/tEOti4OCEwzJ+RHtf0Z/toXWT3Irx04lRIL60AQERWREOTIaYSWh04xxqHhnRb2ZoRKdZXcea+4",
-	"7fHUGKusgzizpYgdCZlZU5oRmE2gPSA16mA8QhobCcuNyAL6uaL9mNRG5Yd75+MKuirtG7rKsPE/qdyM",
-	"plInWSO6JWwu+KRKDCzFF7M7orhSOWhS5gU7L+QmWYzhGKV6kuq0UG5/HpEywc2LVkLmxqqbXUsIzI0I",
-	"uGftVhm5qAqY56R9pn2OEQt3dfPsN9EYx983ncn6NNYE+tXbpCJwVu95FKCqZhxowBuHAgnZM2NeEeHZ",
-	"ZMdplPTV3xpRRctSkQwDJciK5NVoV0aISv3U5OObdVk1Tc8a/4mZIWsnblIUmraXPM+lTRsddJbs4+Ac",
-	"ZstwlVSDMTexjcTvVhohp9e7+WZezGYyX5K8OU9zZdcL5ymITPKSKNJYAeNcMU6yXUQgPGPFJmG0umEC",
-	"vym1r57Zy6QtRqEze/NiZRK9JcIPhSyAOLgLRhZx1WGCumO02oK2fRV24G30fcklZVnr7YoTBU292wYR",
-	"+aMFU9s0rGCR127w56nd1dHw1jtnB11ibQ+tKAKkHc1MfuNe/L20LwzJ/wH0502lPlfXRQDTubIMtlWt",
-	"LujPNlP+eSif7qAhR188Gao26czLJLGDAKSSFJvtJt1cJ2KjiMkIeMksirGZKZIxvCZwstBjBqj9t/+G",
-	"rCQED5LwMdTKFumMETL1eGpyG3kzjbeOC7aOl74aFb8SUJI7N6eTr0pl5/hN11n8VVK9l0EUXIJtN1H5",
-	"UMdcPzkKg99y3BPHJXarLXKJ8iBMlXVu7KQrtr2hfpUruDnwvseLnTgh5oUXlrqWguEaejL3n6NGFuCc",
-	"iT7F4AakkxF+CQOPO426f5qoVUqDSipwfQSVkZnwjIYRBqKNb2H4FInB+BzwHUw8iAJWdQasjCBPjL9f",
-	"JBek11zv3LiqRUUvTaKHK1/DO+nPfYMKy1yMrjfgOcPVlOTyShNkd2Yuassrr1Pb7HbHmxQqd0Y455OR",
-	"0NUP0ZitoI8j52BmUw1+o/mW5jh/NE+C+v3DM9+Qf/TMtficGyw/9i2H4Ncjbur7DeuyUTrmbb81JWX/",
-	"Cq9BKiv/5HBt7eWh2lKgL6aqkLt8O9qgwWRCMdpFnVQj0/X5LvdQuM0rm9oNotbByB9dt8XLNWiar7VU",
-	"n1ZgN4r/UqsVpWMJrZ2k8kIbCwQNImvKn3DUSrYkLWogiaKtDVkMTA4CXG4M0cwK+UXNE35APjd9/MQ5",
-	"XZFiaBOOBpHwRkNXcOhhUNiuJ8Js/91RgTeuuw5tZRbDKMeUQOc2FWpq0Sl8m517iRbvWqc3azQaHXJ5",
-	"sXMvvZMcrldzvO1+v//Tj+3awqHZqjKrnb3Kz91VrCQG7j4CksS3XNQgoHUUNtmMEZsthStgCVUUC+w6",
-	"NhKa1+ng64pq1GH59A5uH72TizVtnPoxCCbP99FvzWBF1sxasOtWDku0ctAb91pwTNYSxjOv762bADCO",
-	"A7G7e+K4dDJG54s5YXCNSHMfH/moHooZ1bSIjl2oft2KWs5VF7tNMU3b+nGWfX5FtZ66SoNXx2X9wdNT",
-	"35QfPMs4u4Z6VTxJ7sA9pGJA364+cH9Ryaj0ElmN+ioNB/gRW4ZTcuIB3//Qcz3wJu7sxrjemWl3N7Pq",
-	"XdpFtwJ8aCSPuxp+bm9bWTWO3NK6sQGmrEHz++G0paFaskGzWN3wGzSNTaTuMUdoN/kN0BsxwfBCzCqR",
-	"qoQxeLxcKdo+RuC3TAfJYzMI/+4ciX26VUhH37sdyE6/34hl9CR0HNmBi73JwNnoT0xamncKDd1szHfs",
-	"NLkYUk/cZWwr9GcHwryegcsVoRqqJul5zW1elmnaUSu+ACAJjSietWykSQFa/6bSzYphe6tMSmHXw/KB",
-	"Bp9brHUyCKhtPjR+x20nPK1Zi+3j6yuLtCqKuS3Dlxo2EIn9LjjWJo1uHkce1mC1ZP2grouwb44bX90v",
-	"GycwyO2zwxSWJ2grXUNtuaqqDB7T+nDa+v7dzkT4Wl0XDdZBMosoUjYy/lme6jdCFuLcFFOhNGBKulks",
-	"TZ6AOMSp58AzH/5mfy6ZKy7qOfbKWbqb/jpnKGgtaKiu36gdrKa1d350DSEDcNOw056su+zZ0GdPxAmK",
-	"/5pd7kZ0XcYDChnAZ5w2cmZQnSu1mMpsUsb7FzJzrjkcl1f14oNMd/FEXY384bOjiclH9gASLu7v2T8e",
-	"kLkcbeqk+xxqahm7DRHGFIfnJw+7UQ1wQ7Qk30JcdelvHCTc+E3d2lJO4Ol/zFWjnvdrVzG/fKquTn31",
-	"T01+doD02Vkt1kY5SwHmB8xKRiodK1x6xBTt4SllM2M3A5k061V/r2RWTHekCSUL6WbPvKGNmCy3nBpq",
-	"9+UfWq4Lp1S4vsu5qabN/exsu+j7+s4nMJwA7qgb6NcYBSiMXd2I9LPKuJSfj+DjLXUWG4LxN+O8bIcv",
-	"s1LpRqCXlTo3xbDnagxxw8sdqttVn+Oj5G9wolgZeUX7UV+YWtfLOQmmPAhP5xXy3WnckiUr0RS6yCAo",
-	"CJ3lBJPIOaRFTKki5/yf806tReZ8crhVYM639VyP/eiT+28bQ3We6b8nTKPtkJrrVq0ScW2r2y9kt75t",
-	"gCN7BrbAXJycfAUQIFQ75GgjcxZH8wfWfxaWMGUpcVpciFyq0uSuuhYQjkRg6pKYnnBc0XfjEf+OSoQx",
-	"vgPzhe6gKt1rQu4hCCruiR5jMFWSMW7X41Nf5C3cGjRHTXuPb3OfoUVlVpH5te0ZINT/Z1K/sZ2K4kxa",
-	"J/puSdz9hvpb7M8rqqD29CnW9zZqvUkpg5RrL4h2CE9yOr6EQ8z/PW9FlQ+x36UOwP2kVWhFLb84uw7h",
-	"pGzkrOxMeWROvgp/ntR/ftaKGuv6jDvo3xFU5crjMzcA/+SLE372Lfq5o2VmB7DiVdpuSFq5WZ31jvvz",
-	"prNeeiAiuiJh9oQXMSVEJb0HBFYXnj7gCUIdwJaagRVemueAdyOSjUYC7+l26TzwmSzG09sJV9z9qnh1",
-	"O+K7vYRL58DuYD52I+WNV0Myv0Gqq011qYVz/Wia50r9NwiNN3jaEcYjO3U4xziUrUCagDDBq7oYvp1u",
-	"qRrKt1GZWn65Zjrs1rvtnTbabhtl+4kt5zW1P8+0/nVs62cctbmjzFIO1Md9luEYoT2WIqbjcwLuLGHB",
-	"IhFn5or5FGBuYx/R3GC+p9LN3P5NcApN9gnkps1c6XWJxHlIqRXcNgf5ny+DfkMFgmAB2r/5yz/9XzuY",
-	"a9wrbda5aSHDveow590hxhnsYmiVMolJu5zNC1NA6p+VeQwn0E3e6hx5reM2qOfmarfprOv9EEeCsSWc",
-	"0titYNMWfC4LRRv+Vtz+VvHrDl1XWo8tdlSqJnI1VumlSm5HHm5FyZLA8rKplLfQbGVRrCuOA+5oS56o",
-	"ya5VUpKyxsaFLENbd6Mmr6eh1s7ZPzKZI36UhRqbVHcNmo5bONxY1+Fqn8AvIlSMB+wgoZLxBzLLXMCl",
-	"e38bWPe6jwT1qnGWbwOt89iBBDufU114j2yG2Ykobr4egGYxN+q8EPE4T4t0LLMRWvhikIDdfuhsguir",
-	"LZGrZbwZVwkwf/b3Pz283z0QrozLuz9hfLeijrl0PRrv7KNVGdVt+uEmIRLL3ZtfhxQLUUDFVC0p0sdN",
-	"JwrsV9MlzHFvDfBsHQx6/XBYthJUCDLg0cBgHneGwcxMg5T/7OT34osD4XtFWy0S93v3f/rx3/9x72z3",
-	"Vr5b20rTro7Efv92Ldn0Yiab2QO/+v/+j3hovI4Wz0s1FC3GekYYIAG39pbgGEGp7UXbMyj0GZZpjkz7",
-	"93/kGEANaimOvOvUY+eKAMRPJ+tjMdtX03Q8pRr5HFB09BlktlhlC5IWrd/KmYvWEYXV/bwRc/O5uUgb",
-	"EdoIZveeBf9uzo4TKCiddtKpJjdqJl94Z5ydeBQH8XkjcnI9SdDOANbs8UHmltCZYWUomMhkZFU2GZWR",
-	"5s1OErAPinyhVoIwsQ4roJIuVUIBpgB+1VVLZQn/K4XNM+k0M6eNKoctslg0o/qEoto27rY3g7QE84gM",
-	"JBfZAZ4lrHXF76MWngktXKSXSq+BSakhYq5dM5RFYue7FkeUsbq+fjOfrNDXyPrsEHPY6UHdsy01lnRW",
-	"nlCXPQrjsa+EExUhdRnJCzWamkVTNMrnnrVgQpQY9huHmnfGa94NGoQhfFf9eNh5k7oEwJwTU7UJVSxS",
-	"2zro2fRCy6IZ6t+dxvoiekTdsjCYHtibVEgWMMHQzfmHWGXTKwtU9OtUUpK3DxzqEQQT+ae7rP6Zb+G4",
-	"rLT+inxVj3Xiv/n2lm55QamRmW8VEOhLv+Tv1yBFB0584bLcFOLselELI/ZELwpvh/Xbqvmo1EKJ6aZo",
-	"uhppxm8RVklbbHvaTA3dCPvvql3f11tqFW9x05LWYbsLMUR0n+epHqdzyR4fc2ORZQKjAPLpM5kodgDH",
-	"u+N8WboZRuj943zDC2dD8InDcHAD0XCV5mqysHDWF+Np6V6OHiiHBwednjhThUgLT+5ztZrGADIU8M0N",
-	"Vw7nvCkMEFZwJrr7e3oX7Xn1Dt+O9Q0Vr99Ga1Kk9HuPHvQaLuSbPaO2unhLPxgGrUJtdL7QxCJLDXGt",
-	"XTPpIizFCvr1UFOy13bsvc8561QIbY3LSj63iN3dLq/4Tg3fOkCsv9XFzSewfn+/COrd+OHuFz0IvZnR",
-	"F+xlHDouukmlcFun3AelPgl67+pg/OnDTw8bs8zeilvYXke3gY1Yt7vA+g06MpoQpD3ySgIRYWIApOVc",
-	"hQBNzhZSpS9r+PFNLAhFe+MtTUlrvO2T0lwRQ4IpsF3g80BIpjD3LBeVWcmqwKaWJMDc8yNov3p5RjD5",
-	"NC9736fJ2z162emJ2FUTD+hAbG6BHimGUIFrhpHmsVXXZm4WhRJS2yuVW6ClQsuZ98WGNPoipk8r3FA8",
-	"IEbb/eR8brrsiFYqsRBcDBGK3FjZufOlw7BxdDgE/eUM9AIzlYk25buxeAoELoLFe1EsdJHCPaT03TNy",
-	"jSzcL5R547u8mYNrYtQ2WjtfuMNfPQQx2W1isRS/Fed98Rtxvv/Tj9dHIq4g1fF7fuXj/OOhrpaDfw9+",
-	"+vH6p/9KSOefHn7ySfcAqPnnK3ixbdCx63OVX/zlH/7LC5lDZEhSRCSAYyy+SjoR6jko5lYP9UpQ+0DE",
-	"h/OMupeI34AiF+Iqk85eex9+Xu+NO38870QVZLWh/kZG4jwS40gk3x6J+MEWVfzxIhJBsUhcfHs01BL0",
-	"AaHmVMgCIY8iwXkjGMOopt0di+Gi37+vRJ+gkVM9yUg7FInzyjvO98GxK+BFRH5YzGVJ+ngsEpGnQEuj",
-	"oeZnSiRAHAFT6Eigb0yeKpeV/Rw6rtUFBRtPkHJRBVTzUCfpZILxMXjCO5G4qPYLbHkzVUDSigvxW7Hv",
-	"ZuLw1XNMqjE3V4o3lvzpx+s/nvP8wYSr6/nIwpmjtC7uo/Y+Tr36Y/sv//TP5z/9eN0BPI01pUZmMrGq",
-	"oMJL2IJranDLtux/27gRidEmCA13nCyCFoOzWby/t/zjQRx5V2lEp6DRQXaNmZK65u1M1bci/oPPUCtq",
-	"+YMDSOZzOL8P8L9YGcHNBANcecAj3pbzgdE9d10Jfr103cFnXwR9wgdPzSJ/9dz/Si9V+esVdxR/PLme",
-	"n4WdXX34kvv7NmoFkC+rygBpCT6a4F7iIP8M3hyTNCtUbiMHqFY6Zwe2GsJdyVJbcEosMVnkdBfJC85D",
-	"9s4Q7E3BPi/nCqWRJg7DiFw6C7rzNjlCF1XPORHXA3wOQsNh8q/4P8Q1v9T9g09v4Zj6H1D/u3/wsFkB",
-	"/Aov6V3BiW4RyZqkFkwya7we3NvbBMfCHMzmxRrIlMkiy0Zr1V6ZGb9Z16fM6d9XSuUmuwlfZKO6gGoO",
-	"++bqXB2U72MwhTcGQtKq3kI/MldmvgvwCbZz43i51vU9vZ12pLK0wUE5YJk8OCgNC8+LuxELGj9i93xA",
-	"eas39OCTakP9aJvN4tlZYNZs4blZJKvfyS4z+DlKurNUp7Yg6rJluguTqWNfNfw6LauHn18cH5ct4NfV",
-	"VioKjsNN6g2M9P1uofh1kS/ULnvdT2vjzqj7f5YhDe8ZR610cLLNMYpzlQulge3xNnPcvxAD5TjwGG2p",
-	"IMbuhkUdOiLyiG88XkF/b8BGK2vfJmxNc2S0Cny+eiJG3zFCDgKeCF3G+OeglkAc4wbw+zDwDzhNKITP",
-	"XAQgsWCQedvrktqxui5yOTeIfoFeYlYVxBmoFC52iGuj7mSGsgG6X9/Fg6Dh0mRv8kbL+pGIHScMgXey",
-	"5IsxDFA4PDb4zoxyYwpQbrhB6xq8qc+k7jzoweMul3o8RWNYVVw4ErGcnacXC7OwWHM88Hl+QsRUhm6v",
-	"QLxhdag4Q2tbkOSuczTU8UKzp9rI+QBSZ0uBpO72CKVoQb2fHmZhxFktH2F7VR66M6iMaqhT66EcfY4i",
-	"t9gmd3vBb5VSv4P0T46nykZDbc3q7NIcprUMeMG2bEWtYFciE13uo1bU8lsm+Bss+W7R4c/aKkOVlVVC",
-	"4lefXt+wnyrfQvlkOzIe0D8of8qdKB8fQ0Orj59Uh1qr5vnLx00Pv6g8/LychuChOTWmeKYbOuLm5ZSm",
-	"pXzzpZugZ+X81AZwHExUrVvlq28rpOt23MJfp9vzJmfnhqvi1k7rdwNduymH31StZu8DS8K2+XVQ2749",
-	"Cgt9fyssFiq6O/AKqzNvsVNOsWSTB8gaXJgmxNRRzbsVi9Ymoj64mhnXjWBrLoI7vvNJ3OQqWQWvI9sJ",
-	"3uFVDJeVVNh4d7Dc7+H22N/FuTTCkyvTfJW269fwzrk5Qi/oLbb0lul+An/7Nm0dEVf5uLhzC/ZyXf6f",
-	"tDmeOQ0iKzbag9x3QZkAiLLRLbSMUAB3IXNeyFT7BATxJFVZpvLm9AIzJfVox3Bn59jc5JoD3wBX7xEJ",
-	"ApR6SUBtyc35emrZclfZbOBwrpGhLC2n+G1j2EnEp8DtrwChGza7403fCd0uTRqg7Zqz/tI97sDs/WzW",
-	"FyM4D6tbYTNZ4ZtzN7Ly1xSDsDny4FWu5tKFxKr5rgAMWsgs/W5hCreZ5jJXuiAPjsUcnakIvk9cmmwx",
-	"U5FQcjzlH0AcZ89LBNTCZCpHxOqf/hVMduNCEuhuAzAptzuavVPArKulMBnXtFpoYy5hHNs7doLquGUX",
-	"akseTMvK6ILe1hpt3hnmPFOzBiDHpyfi0eGDh2JOXwhyLLara7TORR9t4VfokJcbB4HL1yfy26R7J11e",
-	"szfnmkRHTw1CrMksTUQKFk3eb2YyIXcBASSe3LMhref2dxkO9SkUbrzJdIk6u8qM8qjEXBbTxuHwB8xz",
-	"rq0AlD5/12WZpPssAS8XI2CJ2b+YJHLyL3jQ7ze2Zdfgc0I7v3/9+pWgDzDPUgXH6kElifVhvzFZW5EW",
-	"TWmNz6YmL4QldExPK3j/QC2NXaUHq4qjL0+fOZPG0vkZhJW563yR6wHyam+Umqt8wN8MeIfEvVZVp3pT",
-	"aDm+dWMMkAQ3eNZXNs7g+y0PyGt2nBBpIc5zJd805/xAfZHKm8vXtvxASPG3Zy8/F6+okEh1YQil3yTL",
-	"SMR7iKy/R/Zdjf8o/jUGas2P4qGGs3ly9hWyuDF9kfLbAReXM8Wfs7HXI3iTIuWmEH4a100zWyKh7ygV",
-	"XDYjJ598Jdq/6jTyRU3I1ogfxB8XyznGN+mArXPQX4W4LiWIvOJeZMUkk8WuzP/1bVKaX7ciN/Cm6fxi",
-	"ITPkPc5UcZsgxNBL8jtXFxIRytaAmWuOmBoj1tikECh3lI70Kr9MxwDKws5WDfHMpHjLtuCJFlnhx4RX",
-	"hktzcYuyqR2BsWyRq1sUBuvHluD39cJvGxbq1NW0S6qRUPqMyh3MitHCVDSmTj2OkdaYUKtUk0tClQmT",
-	"ewZo9IXSiUiLTk1gznGnu3w61RW9TRD6HQZaNx0FymCq7K4IHqCcbvB5AkLQvcpTVG8DycQH4H0Xi6tp",
-	"mhFBSGQhz6XFmZI04edL9EJyyFaijZVY9rQTD/r3OUXgqSryZfcYBLe6L2vZOMtP2PAOPh0wGV9zeff7",
-	"JVZRAmzadVyLTJx0a0V7ago3LtsRmbzoMr+PSEaJRa+ECyMK4wJqJ+nFIpe3yLLKKHzlQt6YKWMVBm8X",
-	"BDzf0GbkO3KkW7PngkQNOxse8zwlurZDdpgdlZzkn6X0+PYINxPHBFW3CnIl8zpXQqzsGm65mpCigcU1",
-	"eeOr2rJQh/z3tZq3AeklLnQsszXRSwutwSeT0tNt6Ov6L9arX6slVxoLO1ddvsjvmOadmClpUUfdRM0C",
-	"39mQfLE5LfSmPgJKB3WBJ0ksDNr+CpHaoXZw/cgZED5paSQltxSXla3EoDgSMZC7qcqSeKjd3VJyUg74",
-	"P+IaIrHQk7Sg8GyTC7uYq9yqhIPB5VBv1WzPDcOB2cbCgic9xvBWiW0wN5Q/gQffilqu51sTFGzxVaVC",
-	"fnga1svPvvbV4wrWqN9uxzTVo4Xd4EdPxBoJNaynNldroFPkxciqsdHJmoCFicxpQ4hzNU19xrEUZEQM",
-	"wnQoEtIWFFtZDbhe6DfaXK3JXLJRa1Oi/K7C9qaFuFAFqfZxpO2FRqQ9mPEI7i1CsSDRaaE5Q5e/syNK",
-	"Yyo7a2gXrk2DVyLDlsHV1+06bqCLV/Yiz5hp269I5AwfuS2utGs7ckvcfPzJqP+VA3XYURCgEH/J9BuW",
-	"Uxd2IK7/j/+5DzOJmlM4gWlweu9ZBADohNj38HeoOBR//pEP5FDLmVnoAp4k+VJMcsmuzJRFrKD8weUl",
-	"Apwv1B+JnEzEkcPyyFaA6Ya6LAMf1QAYbFThlD1f7PLlPTujjepz1zkyNdQO/tKZjXwzIOhbzt1Ug4Ba",
-	"kazkeJyrJC3wfQSdBf0ophnQCUanjQ26sOYWPD+DMXKIBJFm63HMQeBoTHA3LtZljruduZZwEUZrk0/Q",
-	"2iHW/MTH7W8HtlvH7diilDeWNHh6QuO35nHWun+aechc/vlfWlHrzz9uiz2NfXqxyIp0ni1bET94nF6m",
-	"CXksrM/p4Y7xruoC9p+j8t7Ca+ZbsUVeAbC9hbpBcK7X6o/MTkude7vxNh+XeGnbfL3Imhe7UNfNy7F2",
-	"na77W7Z53R9tZ6i/7rfKr8t9XT+LTSfPT5pfdzcvPDQe+uqSNOGOBJvhBmN/6Fuy6gpZ+rT7/AttDtjz",
-	"HnRkvCQVxdjkOXVljXW9niPF/19wq3ZX360syWloqasnvSptuw4RtSmxxA6SbempuYOrD3ZykRVPLtWt",
-	"shaOp+i3gPh7tDcw5BB5T0rpxVEUV5TU9vmzF2ccvlcYIccFJBjAjLMM9iwFsYZiLLNsIArPOXhjoDPj",
-	"RgLNvxQI47iDMkOtz6LDxb2G1UM8UMQvKJ/gPh1q+hBlP8rLQNXwoNqIHUUwPzTqzlEpAeBQY7jMExET",
-	"FxlzHSleqrq4Z3si/t0TCsKkau3e9/THKE3exqVfJnqvQlCpxIhk5CYsMtSNN/IdJwnbpZ6xZJHgZhKO",
-	"W+wEv98lkWMjwtjOOop1SZlerzr1rE/MtKr851gzx6yuJmra0rNsjRvO63AD4jck/mgRk3sCzWy8C5VY",
-	"ZMVat5u78a9Z2SQr4N8UOcKWMjWi47S9CFzuJl9R8BAVFCeuSvKlv0zBo8o2qy5eT5lUsYzPSmoEf+eu",
-	"xtvne6+oSRryvd+QlikgJzcvZqWllqN4N5cLJTnPCfF58rs11cUnh+Ft+Kjff7j/6NHBg8OHh/1Hj/Zv",
-	"8kDaMWUdbujRGtcvq77bLBqj0UEBBmmqYdGssnRlkECDFLhyGN95eKsOVruQsO14NRg2EmSPWU4Et75T",
-	"VjZ5mIrLr244yUFuvY2emzVvrGouvMC5apObVp1GOHq3htWr3hWNxxUNF4zOJgkLhAklrfRAxPlC9+j0",
-	"Eq7mQuN+GGqaA9uJXGoH25NJEos2/xIySUhTIDmlQ0ypijkFKUR40INQTRj7zzwiTYxGHY9L0IPmITM6",
-	"9EcPdQOsgvtCD6oaTDQvp05Ir1ty/ED9AuOI3Mr2fDLU1V77h77Trai12uNtU6bCUpwu9InrDT6gm8oe",
-	"J4l7UiZShV9fVfuDz54E3aFKXJ++9l3ym+WpUskHCMnCjbWr3Ep8dcNdO5V2NDM3241djqi3UQvCjUfj",
-	"LYOXG4OUkXnFy82UFLN3o9sFj7zag2AIN0tvjuloCvZCxekE9aQmV4kDlqbjPGD6Xfc2jjj+XRvCeYmZ",
-	"O4O/xdgsMso9e64YSRhOsTbFyMVdkemhjbw22UUYBiqppGc7EnGNeHkl/xIwAeLUjsyisGmiRlepTswV",
-	"VerTTnlNIIpFbK/FiDQuRvHiPn8ZVXIUiB5w/p2RoEMUBfy89FiN3ON4qNtl7ozUJRER7kMqj9nbynqP",
-	"hFWqrKxuH/6riWTCynHd8c/qErfQRaO6Qq2o5QY92tn6AjNXiYWiR5U4KD751UkKilL8U+XBF/5BEPfE",
-	"D2oxT9xgLd6JnjbFOgUdDOOcguZXH39uTnhC3e/ii+qs0vNnZy9par92M0vPz3h+a9anqiJv14CNpB5j",
-	"vf/JjSHW6FxUKxY6KK4zpkJjrvR6knaqxhyQ/Z6vnlJVualEKBI22Hjw8Y2k2oH07WjdYRCmRI1TAuOb",
-	"+2TAY1U3x8KnTUDmW8DycuH8niWoqWYY3l0wIbjHN1/n0PBj9/UGW+HnAWx7M/rsKnxHbbF8pwI2/oYU",
-	"urX+hSH+ZFP3GfC3pnUIQuUL0+9TruJt+eA2gZB3Mevvmoc1yArbAO1K8EQuo1pqRQx+APEqCrcfSuOq",
-	"LDL1VWpu573DYtkavZBPdnRpsktnOE1nake9sRO/V20qOIaGyLDMKs9c7ncPrLiSuU71RUR41u4VVUBG",
-	"zGY/AGcluSEOtshNBvO4S5ZIb4XAQfhyUTCpzculd840CoKltMy89u5IO7sTPjnDpKbNTlG3ssreDOFN",
-	"MJxXlZFvNzjauNvLUQtNzEjDJnUNrgn0RZw/KFPpr5suHcL6/T0R2bG93JY8LvRTbB281FpR+fvk7Csk",
-	"j9trvkr71W6BYKXGddcyo+3Rs81aWKnb3HO7h7KfLoIY9gbnTFI6OcRXu1a7W0WGtX5HwIIm9XwN5I+8",
-	"vc9kBcJ2q2H5NJM3AaugWs7rzerLV9k8de2cXzp/UBrBrcPul+vjz+lNHKNT93wIPrgkHQ2WSHiHsDg+",
-	"X2T07hRm21PctGrbTyC2/gGS/e2gjb8NaMGucAWbM2O52qJN+cFPF7dNlnibe/lDUuqQ8G4q5XH/3oW4",
-	"esD2uuvACqVjyX6bmvlTX/c21PoE44KYx1lPtu9Z/9JSPqeZBF0a+kJiVgYwsrtPur58pyeeQKCRx1iW",
-	"vu57tnTFQz9Pn8VZxL4tUGDBDomdXtKVJnVk7VlaEMOBodQqIU9NUDkxKhcioC+FLADwqNyPDHjsi7Hn",
-	"MZTgKGosqBLyA8Q+ItSRxycXC50pa1fTkqRFmYUE1X1bbZPaZvZb5EF/Cyy22u24SrgJxSwg3Dh6BGfZ",
-	"moS767RhHz/YDezGX7UbLtZyQGtJkkdh+SCaoR34joqOqEHs28FmuyJzsT1xSwSXkrO7O8Sg9Y4e++tY",
-	"1S28M9bYpCtADH72t6jvZoavKT9kMLqN0/mOCf7fb8LNJF+OnF/26iI9zpdAqwuVB87bhfOJFpi0IMmX",
-	"XcJHFpjM7TapCfbXgi2QT/m7gzZQPd4jc+Nhgm9ugQOS2tEdJ2t/vdZwRWXgwsQ4XTaPeWd9VDnB29j3",
-	"KA7Ua/XsSihEE7RjrTGvPQpzvt8G8MS7OlBIQIPhEZ+Do6hFH3uHQpJqEVeK4hrGHQxHplyfAYZJHK52",
-	"fISpXqA2TdCQO+zNlX202ontNtK7pJtd4dpuYQio2iBts1crcWE0xHs2sHSe53L8RiFW5dKl5ajGY1nR",
-	"fnby1d7JyVelQZV5qkf9v/zDf9nf74tfQTjO+Z5jVsvA8c4RbUYpoDxmh4kc20a9ETZ1FgsML/KpQZAT",
-	"DGyxJTg4qaQhqoKrwDfaDLWZK9CMVsLYMMasTZksYREzVai4gzEemcGmjFZRpaXCmJ44xi5jV4d6vy+8",
-	"t4pOhPRl4RuZM1MIeSnHZjYzWsyRnI5JPfvk1bE46Pd7n3ZROUan0naIh5UILDGehkCeQHn54LMzYmk3",
-	"bnJJdeNqUBqZwD59laKbHaRNQjTyhYZhqMTtgsBunRbWjbhZmVzuuK15oWeuSAPXeLAjRqIfcaUnTWes",
-	"woHtqmzmDeZM3EGIUmm3UNoJHu9HJ72TL/ENOHvHjZhi1QjOC3mpMBYUnWtRuIvRf2x3cLzbgMaHvsbb",
-	"XbHEHTferi7BUN2PeIz5BXIz692hu7I/vb/ldt+He3KADOgclMEFvvTLAY+VBs8bhyJYOgftgCB4gxtz",
-	"coMndZqgGzUJ+Bi/MFHKsSXpHbuJOh7H5zm7kSydnQDxfp8O2e+KWLh5xNWo6F+Wn/NdCGx37tm8lUbN",
-	"MWbsdPLODsgV1/sbLH1hPA8caIrlh9V1MdhYy/Y2QMfOVhv88uTLF4gM5BSAfLPcsw1Z9CMKtBdx5RW4",
-	"4VbnJSaC5MHHkT1K9c1ej7dzmK5qikLpfTuQyl3gL9f5Va96h9eOZMPqb533NORf/ho1XJtOYyPw9U5K",
-	"LWrd3s4msav6/rks1A36+7tB+T4bGwLcC3zO7aBED8KpGcAG92avgfc6x/wh2ybGg4ZOF9o6ZCF6QA2c",
-	"Uv34CC1P1juS47Njagj6W6WVO7t0OEZhnknMS0AEj8wOXHUDBBmKTbdHwSkx/xrw/Eh6bk4vtCbauNkl",
-	"xle1EUOvfmhQnHwfI0s3R4ytzoS0dl2ypBtmiZUFDuFv17h3pALB7HE8DneoVv9uk0uy+4b4Jr4OK7A0",
-	"XApfsLx8JPpVD4bVWdCm2C1tVNRiJcaO3eNSO3bvpiVcy1B6RrIZcsf7eTvuEd2Yt6RJfOKrmDsrLs4h",
-	"1SlbWEWw9BtoJVDLTXS5I9x6+QMYlVSmkU6nFzP5mbTpGmHt3//RrdWzk9+LLw7apwcdxi8Rz18+Fr8V",
-	"93v3f/rx3/9x7wy5pucvv4CUin16BNkUMYJ+ZBPKsiPOHpeOuSWqpTYzBGhBiMA25pMrpsaqoUZlaOJM",
-	"oQwUCHHUBDg4QqsfVW/3/vJP/+uViyzHyqFujNigr1dhCCPXqUoSRZHO5hhyQYiDbQXAA8MST8ymyUJm",
-	"UIzRg6gk5K8RsXtdjjkoEA11OQtlN80EOVTuAeTWWRSGA0OcInIgyrkMQKvyhUYgmHgGoRIOJMCiGD0z",
-	"uWIIgxI0QGUwryvzVw3mgPZh73CDmNCt8j3d4m6g22ex5d12TPWXDz6Dls6SyrPn2CRkW81qb0656TMK",
-	"FPCxXrvndCiULsC9wN3D61PN58ga3MM08WhT59LCFmmW4Rqgc+VU2jXJ211zdioPHnyy2trZ74+7Bw8+",
-	"Ee2pui6xY6U2GgFhEd3OTILOoBtpeqEbQ7Kqnupr7tFtpNH1KQVnUqcTZYs1urpXeaoLVpNEiHGLJqAv",
-	"X5+Qwd7AqEDgQ+UK6dSni5nUiFUF5FBQouapubLrvFW52ireomMkw9TLKDul52mWFstdsy6/oEZK7rH2",
-	"oikpsy9TbRjDy3Fe1id43KgHgYVfC+/tcAXSRLTLlLtUCB1b12GJYa3NKNmEse632oDDVmPQF+L6kEoR",
-	"JwCi5mrhrCxJNmfCoCoblQlfvj7ZXj3g6xnhrmqeHMzJSvjqhTNEZvL8niU3+D+hGQUw6e/fv/+otNbA",
-	"83tWUA5bhwfGmCNIoY1WVEOqKaqYbJ/aFOQ0AM+/fH0yYIg6KFI5OT51OlJpi0sUJkmF9KjfH77t0h8H",
-	"5R+v3R+DlT/a/+mHb37T/XbleacxoSr0fgTjbNxzLqhXZps0dO4rvZOyvCx1vrxZJEmTVnWzhgci8mkb",
-	"KwesJBHhdlvdMuEsrNDqaOWuqFO/NdwV0YJbJDX1MdU7KDJckRtdRoLKN/b73WN13jGmyPfERfSU4UUr",
-	"r4JIo90SpQZXyArgMgbwIx1zJK4MlOYAtcKqbHLkPRmY0tNnUgtPDqEW6VWjbQJctgucdTJlvL8LjBdy",
-	"7T1Wfd90ndVrWL3Vtkw3G22676oJcZsy0/KErbmmUndLiTbzze626vTCm4kY82BpJoF7KCe2TpTLJEJS",
-	"HK135Bo4X8Lqcjpcui14I61sBYrO5iOQh5GJWO9sQYiRWpwrIbWh5N94I5SQsaUsAZotqiO1wuPf0mYk",
-	"I9WSBiPaaL+LnJ2tppUn15xOZUAiyOS7eUygTTciSSlsfm5s4cURkDzkG1Wd4nB/u+DrEEOCO3fLjX1G",
-	"u8IFIa95HYJErPnk1HVjXUpgv81LutFIQgPb3V0lN9wWACuwQ6G49gF9EUvrBrW8ap7Y7E9Udcv9AC6J",
-	"K5N6Q2xh8PH/IB51kce5QMJ0lVpysvNb64MmIrurDfaCXe53DgLZJc6SeNP1kZabT3uy7gVl9NsN3PY2",
-	"jizqei4RXmOhxyovZKqL5ZbNUbyB3ak5p8Lfxm3fLd8foMxGOpeZZpjUeZmubpfcp5UUdw26bxeDsdPI",
-	"fSFQcq5zf0CQj/pSVLfhgi78zh7+U6pMoQgp2pVHuwzGv6VPj12g31CzS5dPuLflBrl7mGGG4GAry4qZ",
-	"3cEPN84kbZNgiJUdXN0s29u9m/ZqRU3FeRR8eBOlYhi/GVlTmvc5GTvi4OIu3zLjCtd56lppRf7ZGTQS",
-	"/H5O9Tb0+RaCayVWa6dYHNfojVxG2cQ2837LcL+SNm93q4dX3cq1furuYY6zcicefIDd32UYWMGhVy58",
-	"657thVfCLtzNyl1xW+/ydZdBgw6ypDb3rHDlRFBOfMkYv7X+3SL/ws920dzBpsDJKo83pxdHsc5vhdSK",
-	"9goJEJB5qdMLrreq3By9t+su9Hd+X5ff9ts7vJFunIHKDXXTrq3kj5URao2VTIDH+xKv0De32KvuztvS",
-	"KRi+fk+UxF+yG+eB3H+PygR7nICx3srtg1Y2XuHB0W4i868ZGb+GNpMrJQp1XQR5X484H0aRm0yMpzKX",
-	"40LlQJrGal6IQp5HIks1O/VKhBLP81ReKJGrYpFrTpVS1UxVdVqhvv6Pw+F1v9+F/34K//kM/nMC/3kC",
-	"D/efDofXD59++5tGVfxrEB9uCZBwCx7/NqAja3wFgg8CQSi1lNtGFMaDZrBmlPH7Slyu7V1M1prO7NjM",
-	"d1GZw+dNDWCfmsdp1ThXRU+cTc2VFughACLokUgLMZaaUSQxZR3GWmzpOEotRi5dBg+kwm02HgModksW",
-	"B+JoRmjCz022hh6gM15qC4QMoPs8S8cw1KlJxwpTN1mLiXpowSH8BhSGGNlWuv3RuQo9/UTbKRYODw48",
-	"nH9adHrimU/9hZpOKiZS0jPCGc0Vm91dFedLcg4xi7yrlspS0tvVqHarCito4KC2H1Er6yKEdtrxKSPM",
-	"YfZB6CiOnjd7IihGql2WEecpZtXt9IQn6vgxV4McUjCBBSu4YYPhqgDJD06QSK2fjsP+fW6YtMllq/cs",
-	"6n6wS4f9w/VfsSaX0H7FcyUvVXkJ1A6vaGOHIl60yKmptw/QWIcYcP9gk0tqM3yAIw53wKJ9PTUwCZiL",
-	"AoPPFlaVxO0IXRO0Cw2h6BrWx8lFkhaiyGWa4ZVrrnRTfuWvp2ZWVigAq1RfwEYaiJhMAJwIGfXPLhMy",
-	"2KPKxVpNldwb6sdk/iCrQfltRUvl9gLturjca/FQU39khkZxlfGwqUuMded2nV1QFMxQr9yT0d1R6HJP",
-	"HO66JZoTEnFHGolqrvRdqu7PpVUZZ2XciD0I7X7mPr4lFlsVc2alL+S9tyWM3nP6OPQDbbC6FUZAXnTY",
-	"+rOUSF1CrpypFQWMCQDVAwdL4SYkcrS9zOZCKqzd2AGfE3yrCX7lv3aZz7ffjlQBlGnqR5Ev9NhxbrX7",
-	"Il+oUgtPwMICg3VnlCVSarEf9ft9NyNAoEHOw+9Nlihb8AcIXwNz3HxtXTr4yF1gfULUyRsBJypAJ17R",
-	"Vi6Cn9Vg5/uNV+lgOGWB7+qmgInqGXkHhMx3QrucwWTvGEC1xknZNuyWMw4tdzaZRF2mOGWircVf/umf",
-	"xf66zNj+aO0a6mpVptagbECKTXTL5qr9oVUYOG6s2oLJxRnD0cJMhMCaYdtrV/xVeMTZtg+NZQbdgNZF",
-	"zvpNKSRTIgoft6E92lUCi5KDTFjzbo1a+ch+t5CU2jcz2/q7Vjt+xq1Unz4L2qy+CZxcV16d+d5UXzw3",
-	"5BEbkKkPgHK2a3YlBTS+mUxWPG4XmdtkvgTlIUhd5qT2xKPLuqS9If2cpYTFgB/bzjo2fxTez6sf3A7a",
-	"br2Kxe9JlwCqOYyd0ntqBXcnpxSepEUEZ9xv1J0D2ndF3KtfJ034HbhKhH7sv3Uww8FibS0L1CB8N8Mo",
-	"BJGVlUBKZ+/xCdNLdMBy+1UXvzLWJkKE+zc8FYtFmqw6a8ru5Lj79NvvP33bDX8e7vJz/+Bto3roy8Y4",
-	"2GOBkbAYQwBKtEio3kVPxLOLvecQ4Lrgf7+Zz2ffxjV1FotYa5RZ/6fu//nb7/ej+2v685XMU6nHChL6",
-	"ZzvGzX2NHnD7e/aPB3HEifuoNjFZ6HEYKeTdH84eDwToB0U8N1cqh9w6tn3dAcSC/k8/zuR1+zoS16NZ",
-	"qjt/HO+TDI0/sRo7k1lWCQShZB9DXfEiOOImYFfIHKIjRJupCmgjQB2/t9/r9/qdsHnxGzHe/+nH60Z8",
-	"k22Tco73t/xwTcBb7Xi4HFCQwXO837ipvyopQs37EfHLiSpJvQzAAgnahmlSxRmyIZFKeNHOpYWjOKkG",
-	"um26Qrl3r6gg/3qK5anvZSagD3DRrYc0uY1z1ruCi2yVyHB9JGWZyH80b1r/Xz3GUK7+Tz+2J6jqAb6T",
-	"I7U6e/zHrvcP1tSE4hlMH+lOIYXVpotR5MYUAXg8EYhd+7P9TG5jNQz34xauKSAQNc89XKw//OrxD6Sq",
-	"LPWbLr7DpyQliXpLD45NsbDbRrs2TeKdwWSUaP0rXCFnV8U5K+G5MEm5ZSCcrdTsAcPAxPFmRzK3bVdj",
-	"dqtHKFzSINCXz2CQVKDKqmzpTxJurg+HoM2aXJ9ys1E4nMH9wF86bI+au/G5wrx7cIGSN1yDqTQQii9r",
-	"lH3bU7ey6LXkdfXh3KBsWDnQq7dkqtMihbAAQJmjfFtjo4tUL1J9EYv2CTwNzfxhj8LLkSuincjlt78l",
-	"fZXPfDWVDRNUWRvXLXx8brORwmFvr3+pru0NwkC1iR2W9k4Qwddg4XgdzpUEui3tYrfkF5vx0D7nyOnK",
-	"Z5EgO4Doe/fgEhgHhIRbQaDekLv8ne/HD+pHvA3Rd66EwTI3baSvMWj7ROokTRhTYJdNlFymVq0J58Rx",
-	"KBcOPp4aY9fBGZIabmM1HD0vwELYXMlMXnOEN0WiQ/hbvkaLkcn8QtlC4CelWamQGYexY1wk1iYIknGh",
-	"E9TspFaM3WyFHB6DEGpTBKLDTgpWUzQyD0shyxaxDfsmnc9JeKFrWsC1fiTUbF4sQ0f3xgik2Uieg+f/",
-	"alv/9r/98KvTJz+46QAetjuW2XiBWf3KGKMVxrapd7sO3+MX3HQsvvYf1o9FWUVlnGt3ht93kd/IvAzr",
-	"T0pjqN1zJW3RJSWr5Q0E6e/3967/2O89iMVf/uH/Cb+WfzyI+XUlDgKjl4YalQLEY9QhwFBFyFqE9nE2",
-	"U2kihSqEzHqR+NveUJ9MczOThbnIe+Iz8fDhoWgf9PsHHXGw/6DTc4oK1zdocH8PhP+f/it5WsuhXtVf",
-	"BMqJa1BI0MYWcpwba+l0WFEYkZmLNv4a6rPHHQ/SCY8rw+hEnJQVxkvlITb5Souzx0ccYCyHutxPZuLI",
-	"BxqTcMdRVLjXgfAZlaGjBCQ3iP1uGBlcJ9urg0zw7Nuea4RpFKFuBLvaBVN7DYxdzKBv8hx9nZVwftkC",
-	"YctcRoehXnuEhJwZtDEai5HXBO6mTYXkgG0NIDekFlOZTZrIVE88wekg2ZLAXtBFpDyUVqTaT8eofBxH",
-	"ArFK6sE1k/Qagz5sCSkCUCi4OUdmMpopqWPRhgUgFZOYgfrMkl/nQHwl8/YSts2//+NP//WnH3/4//74",
-	"wx/bB//23zqR+Lf/RtOCJgsYTqZp3wjYNkaLTMPnSM6YshDnCXNK6azL9YtEWqgcpxVeCSkckInIFdwU",
-	"QYpcNzH/9t8I9XdqrhzBVrZIZ1hLqkWsjaZBQcjlU5OL1WHyURpqd5bwJJc9hc2dFrSt3RY/e1xFKNEU",
-	"p830gf7i3wf479I/X/Jvem7xXwY4qSzJlsy2p2KfUxf872f68uy7vPi72rOV3wcNhf5j7dnK75VClQeM",
-	"p+J/v4JxvZy8wFGFlPfl3PPfOyGclfmGXU2CaULE5MRJ5JM0y5owhEk0toDhskUgu0Mlehu1qjSnyYZa",
-	"tzRWC0SVpjfeSzw7t4Ey3zRF4Kg1SVWWlK60pWMuz9t7nbCaj6xCMCRHu5uvA61UQs5r7uIrDMYnN18u",
-	"bamd9xpRP1dKm4JLQhTyBSTWHmr8mHpRhScScTDqgaC6aa6Qn4KPkRhQ5p6eYDcncX8gJNyBHPR0Zcoq",
-	"4WIzWolEXeQK+gxllUog8Q8swKMH4lcCk0wLO5fawhDIlQvvJ1ith/2O924qpaFAh3EQNW3K1Y3mkTRu",
-	"J3HuhmvwfiLyN5a8OWiaa149huiCMF7kabE8g5HQiM+VzFV+vCimq/s4hscmT/+EnNFAfIbfkuw7Ruc0",
-	"5w4n0IvMDio+bpGIWRuEQJRgSoorDqrwBfo1xpT6HG8pyrKVGnCei6+7brRd8iZjGC0SuEC2wi6VUsS0",
-	"KOatt2/R6jwxq0PC9sGXSuUExm5D3z3oPN758tzkbIoJFEueNYqAzbRDLSuvV/LdRWTIoSRPzHBWcsvL",
-	"8VjNC6nHCjjrLB0vCazbKpglJ09GxGxjVZGYZ6awEaOKh2jfFk/eQr/R5gpujS+OXQ5oqFLqisfkUA/1",
-	"r3/9hNGLYJFcFn1ZEJfb+/WvxbHvn0iB3Z/NF0WAcE88qNGT9AJ0LmIMy56n0gEBy9yjq1kBx1IT9Zgv",
-	"zrPUTlUiLhZpItG3G+sq550mB8ZWsMaFEI4vgEtlh194wgzh2ctXSMWGep6rsUoU1ukUpkBq3VwQCAOn",
-	"PE+cvyUn9GKNKiXDGGpaUM78xbNcyji5mivpHJOBMXPasBhn92/+RpwYfak0PhvqLuGL0TXF0eG5ElbL",
-	"N2o0xlZfp+6pB0lqxySgDoRXYsVA4IWQ2RUuWJ4WhYdAIjZTXctxkS2FTa991h6ZiSS9wF0rRDs+6B98",
-	"0u3f7/YPXvc/HfT7g36/R5qn/xR3BuKVscVFrs6+eO5OySwFiQpBmWwkrIFq6F7DDxIGaLIlItMEBHB2",
-	"zE4siuq+ZxIvgTQrVN6DqSnVT5agQqjKKd4vbTiWzpExIq9YyI2RKwG2I0G00fbEqSF3dtjr87nSSRdF",
-	"MgcQC34etCXglEHv0V0XRoInTamEaiXJn4xCfN1YEadJvAdJNmJyFIciiSzkOangzdxi2jghDv744L7o",
-	"in2YJZ6icZYqXUTib+WlPENqJFJNuIsRT08xVTM3PTglkIgNtgkSlDRRcoCAIAibIgV5rKdWxHiTxj6L",
-	"CkORlckmoEvwXWkEcR9bA6cH2KhQc8qVlrnvXNWalxxy9EjviO7pCiaNiyqAPBEsMpw9LNURU1yVskuy",
-	"iHGon+N8086fpBpG9uzJkyfdhw8OBallbI9OD4d/jGWeL8Xn8nOEPtdYZnmEp4L9lnCJEqNI26WuU4u9",
-	"JsM6vqxY0h1pi4D9ElW1EuVFcd6zuTFFB3sPaqHYaQuksLCDtcpwRMx9CLp7XdiAYOJMRMCKdtzEmgwE",
-	"siYxcERCnHpcCq4KJomTskhghbMMNxpK3ST3w/yNCUUL/QqwNbfL8WrJobcOiAfpV2LGdAX6OaN781wd",
-	"8e61wk7Ngiqi0JD0QptcucEgLE5isCyMMuK8PZksVC44BYYVMkm4BC09EkIzCW5hG7n700ZM323kNDl4",
-	"O7o8O6B6ECItacdA7IvCiE8OxfHZybNnIlNFoXIbMenD0nEP2I4R/GcA/+nGEQ1J5ihSsKBORWF/Ydky",
-	"PUZJqkD+/lKnCI8PNXMEHNQWBMHJXPHyJ+5eAIOQHepjkaW24N0otbjIzZXfaRT80Y5/9+Q1Zs4k6gcd",
-	"dk/4dos7mGkS1xUVBHN5ATMnYYW0oOx6ywFMdk67csBCQCza8K2w6Z/UETFf2CG0J1ZkJ06yhax5B48Z",
-	"TOR4kVuTM4rqHAiCWVhsHlg3ra6LEX9SCUwjria3SCzh604UqK8wXAIvBuvCPvBj/PKIRkEngiMvCjWz",
-	"UbW5crE+V9fFCT3sUKen0o5AaRXjPei++720L+Bhpyf+oNTczZTfDzzW31ZauZqmGe7AslKB/vgLBcmh",
-	"cC6xtNQCXfTjYCE7dASxeFDrAPXWoEvE+eeEVxfqyJHSdlxZe2YDcAfzkUaFkoWJNmJusox4LmgDT9yx",
-	"e51aYebyO3DyLJ1441fyQrkZO8LdU0x5e6Vj5fCoiILbhcLcWfgXSacU58QLiDmzDvt93Pe46Wlbe3eL",
-	"NHf5U9uS0dxRwq2lIYPd7Dwz6qnHkLctGdsoYLBtB70X4NrMVORPFp4P7NIXC7ic/eChslL8CCnhOINT",
-	"HJxkWtfDfh+uaEyIRsFn8XdQ5Wq8kNcqE830lAAELKULHg1RN5Rzhpp4c1jtWORmUSjWGOwglB1zBBFG",
-	"2yoU0ofawRZTOwPoyA/0Q/yAS/gDMRdW/MCsyQ9D/UO32638DwqFsp74oRKs94Mgno2IPxPsqIpHXiqa",
-	"Xfq4DtRCuP4l6RfcVihJih/E82cvzog5y3kn/FCRhdraEG9DXFDHd8mxkSxHBXvHRmENEXe73IMlPBwe",
-	"xSjEKNQwdWMVXFirqZKpAGJnIvYus2o0vqpgLH4A8c0WcjLBZYCHloDkCFYyKrms2rwiDl3Au9htRi7a",
-	"c8WhiCyAynw8BV3SzbNw2xGT5C9+qEbAQneRacbVg84u7A1NoDxAYhqGo1dqgMaGGpMb5iZTvKWdmCvH",
-	"BRyLgXAMrcpLfhymzcP58B4e6rQQf79ILhQqHXEXVgpEFTeyYI59TTwJaTHUMMnpJValK3oIX6M7BBya",
-	"iwrDnnhF42yT9CqzoU5kIemGc9PBIUxAad1UgzRUUgUXXhoe3KFmMHsfGZXmpBUpo4tFe1NYa6fn57sk",
-	"pRnSfpxGpDrE80CvcBXYhUJdF0rDjh7qBsXPYCUA+te/Bu7WaPXrX7PdaYbWuWRGxm03buSPoAsq8dHV",
-	"ZKnLiSYXnLHNek4avnYqj0wVCvN6D/XLudLHr54Jp0dz8G8u8FMyvS5HDoJCqWIbiG++jYe6HcwEypum",
-	"YG0CCr0qV4Mm1ZfDNkazf2oLmOpjF4IRiZnMQFcAR9LJGWiSvTSQdtJHMB/2949ITEqTIBDaLGA/umnC",
-	"Funr+z0R702VzIrpn4D93INdtaQ/Z6rI07HlhE57Zq60nKe9pZxl8VCj2kUbF8Ecu1nDWei4K/AJmiPd",
-	"fYfGSVxFjUqQR4cPHop5bs4zNQN5aU5a99ToPX76m7+3mGSKWLmhjl/Rc2cdSzUNNQWbQyRibMHGrIIh",
-	"leNkojBSnCQT5JUlCZznJmEBCg4S9OiTR/19eofhP7j9GbMaPqbIAGTrfLZ7u3ewV82JJdrxsDVs+SVF",
-	"FgXLd46o9ZOzr8RYZRme370s1cruMVuB/yj+NYZEt+7KBz44xgr3u6CXSMR8urQIbg81IKcOXZsqmSic",
-	"Zny833HxDNzQwz3HZMfcnZJDhP5Q0y5cepXdcdURN0TCRiTiuSymgzQhgSumTgyeJWo2N4XS42X3D2qJ",
-	"4gQ5sLBsPkstZfol60c49VgR6RpT63xLcpLlLHPue7zVXrjjIexSF/I6Elc52reXcw5mYmEgiLGBw3nY",
-	"7x/R5nEAAWBWzbIu13YOwlqu5BsrJIEisA3cscxth2JbqNCG7djLoYYzF1HIPx1b+iKC+hRym2k5R+KN",
-	"WqL+4fDgAGj5g36fNLdAsId66LMb0lEatvy9E7NQM0oTBswlh9EL6EhhQu1AZmALf84cVOpUSaWOCSsK",
-	"8BCI6DttMiksHNcZ/12X1SHdZxDoIUU4fUDMUDR0DtiobECS/Qbjr5hMnMqCnZMtXy98GaAq8XyB2WnN",
-	"xPXNlvjEECUP/USzqZCFeNAHLQ/pMo9KNAj0cyCFoaN+Na7zQhVWPEBNp0X4jU7PjVpqC7xDYYLpYU1C",
-	"QGkjYRfjsaL81rg+EUvblLbEgQZ8tzCFdNciH1ZWs7hsMU9ePxVJLifFUOM/3VQVky6YP+Q87eayUDhZ",
-	"XSptu/1PRJtciUrXBebOU30BcmwMU/ycFANM8diluJgqS9AfeCL4DrJeMXSVJipbIrvRGYQVdbk6vPBo",
-	"jSBhV/onkPmDz07VTKaa3HmRFA41T6JFi25EQijslbFZ6EIl9fJWQTO0plYsdJFm7N5COyO1rI8G0wWr",
-	"Asryr9D2glSZsCDgKf6pjq5+S8+4bifQ9Yb6lWR7Dn6Of/E2wOPJGQ7iU1Xkyy7m1Y2RjyCPvsSfFDvU",
-	"TsSkmeY1o0Pqdoz/2inZiGOgUVJ5DmCWjvRVDl4HKRVpTpFVklnmVS49ceynvAoVkAasA7TK848ziOcB",
-	"U0eJ124a8OTOVQ6XNvR7IM7VNNWJ0IJN5lZI3jkI5EKwLZpPVVq4A0+aQaD5F0qzEw2o2tyJI62/AO+R",
-	"ktTUvEk46k0zeiy2RPphCdY7HegORdtxywYOELR0wdnlma3pcj9M3gHC638NdVXZjPWkBatLxUzOOfQu",
-	"W3jOl5m+NDB7QI84dHpQejjY0EPvP/+ziJ0PDNyn+3vX5VP3BHwC/vKf/3mo8eEBPV2u1vAf+U351D35",
-	"40Hw7ADNtuxr4MsfxEfe1+hwnvGbp2aRv8I4yAfls/RSvXoeH5XaUYpnjfe7B5a/gUDU/QNUbu5371ee",
-	"3senB9VvD+jb0+6hjYfaPz49xMeH3f3w48N9qrh/Hdbbv46PiM7bGi4Lf8MJD1eM2FxHmf8QvqgJ7zT9",
-	"YULE+Mi7PMwVy7nxn/+Fa3uxyIp0ngHme/znH/nh4/QyTVTMksdVmvMWQuaYbH94eukYUJIEPDuQhJnl",
-	"NaDeFYsBnA7r1J4WVocSPUcifuVVH/RkqHmU7gP69QRMOSdQMTzDvMhwUsFoWDdBTNH2DRveJfR3tpmS",
-	"ORpLLdSM3CpJ9kAZrEIh7FVaAJd+qfCsqRlc2hWzAn4mk4QPGVaBgCnSa7DPc6nHU2+ZxeiUzFwMMXAj",
-	"l2OXMhdv2P3eQa9PCX4C4kO3XQfFg/jVyzNWwy+03RvbS7g9yMZ2utAn9tLNCDDyqEioqRfJ8Oi88Npx",
-	"oa4Lqgd4kEh8V1dOOnGw06u1HpcmGfLkCeqSlm3bqPvdhVcpiWr9Oif2ven2brqUm69a1L5vybiQc8iw",
-	"FbKArQ67DIiV21QEl+kMh914IvAoDMJ9Txu8R5nsybDgbEwrp0PEYVbbapnKuaG5Ko9OD7uAgt/qiSJG",
-	"iW8KGoKxxB+jWRJXMhLaXDlBne3sAxHLc3OpRtIuZ/PCEOECsKur8BF2JrUjsyhsmqgRoeTwGjkz+cil",
-	"ZowJGoK480Xh9P7OVIg78es0V13QksgiPQckyOplTSwC3tEkZzHOJ9RjJky8rGijAIUC+Mp93wl2bnjn",
-	"T2XDfQ+SGoq0ROg4X1yCTAq0eWEKMc8VedBhEdH+nXFddc0yrndoFrVKWaHVFVQyNpziCitwsu5TpO+e",
-	"lJNn35//JXbOMGBjj5+AiBrTkIBl8vWnVjjl0v3ePhAf9v293+v37nd64nPgXoH040QOyE4NtiJK4+Zu",
-	"hpjefvM6EkMMXBi2vgUv6vJTj4pNjiDh1nQ2PEpSjfQd7rBn+qnJx6oHxqhRqGqO0RYYG61eTgbim+/B",
-	"ae5tJL6nPrj2337r5wBl9zMWs4HU4E2I2zJDudUyX6ndJUkoj1n6hpQXMB0wszMRuwEN0OAW0/mAXS1i",
-	"xKWLcfqoPHKpXSgBDJ41MxVkq/EBWjHK9oJVOQvyMFLZRLRXPh2IPth0pK0M6aB/0O/uH8DWJNreE58b",
-	"vlcIV0UJuMhx+WOStb0mKhC/vat+Yarb8Mjnm0OqjWMGBdWULpdYXSNRitkHAd1ulqT3bqM2hY/ZgExA",
-	"YwgVYBO105pCGszfPXkNVfvb7fs0eRvTFysysbMEB/zPkddaM/V0nDV1HrmuI69cv8G+QM7wokHzTx1a",
-	"bVyu075DNSu2CK6kMihan5qdfe97+mMEkzFAWZS7KVE9jx2EjXbVqzIIgXp97/vyx9u9wNi0dw7+GvFA",
-	"WJgjmXkPCNxHmlvDRY9IjHE+eLAkVRsUNk8MTrf0vrGl6Fdm0674+UQidlnv+aaope2Pgpz9wd+c6x4e",
-	"8TUodRKRet3d0T6cnmIcEPMwpl8qieubU6srMVPoE9RhmzVzUfesOPcWiolTuN2gYROsYEMyg77X5KNW",
-	"XKVj1SHp0HFqeHmQMwfoVcHcTirRwz1uwbnf2doNMc/NLLXAvwZY1lLM60riRMFtk8BoiAJX1MS+kSNn",
-	"ULpnaxog1980Jx6R3CgcmwhYp84znXrgUM9BRk2tJB9tvRrAhdQkc5OBo3alIAifbsWZsQ7ikngrVN8L",
-	"isC3oIlkLE+JSLYEGAXBQwbdZr07BBEq3iVMdJeo94Ijz46eOVSRK4ssfjuhiBpw+bNRKDqjkTLF4x3D",
-	"mut7IDeAyAAqDifrYPeHhFkKmve21KwxJo9pjCy/kJeuN0TZ5zK3iCOFAyC4TtF2ExTsFHLclfgdTO/J",
-	"2VeknEaNKWwtpNToSqELd3OgJsG5/RBR9u5UUrtdGajs2UkXK03UOJ1haPJsJp0lAa7KbEmMLko7zfIN",
-	"shjuxBF+NwlciZor9NAwmo1ZS1V0Bk0UkTOmoQ9R4EGCbl8x6YuuvJcQXpZGl26jUCzBo9kTdS8nFlFs",
-	"4FmDm+0OHDbwzOFmQ+aW/TFCJtM5su7sWQs8Gy4VM5zoG7OYi8IInWpmZL0f5vmynCPy4XSOrv4qrJn1",
-	"N1jBO875MShxjzwsRZsvDvbFJSmpE7RdXgHMN0DzIk2IGcMrxCVJJ14hcOJxzq6ijTyjv66VxrvI46o4",
-	"T1meBHDO72XpWGmWhY7nQNS7B71+5Ny+coWtkjP482cnTz4/e0Le/1ywNfieoYhbZfFW1FrkGUcC2MHe",
-	"3tXVVU/i657JL/a4rN3jGrEMZmgtMlUNECBMM0q02drv8YesDWwNWsioEzrZFGMpnJkU/r5QTTBivK0P",
-	"AGQUvMfoAJGmlBQ7KYBBf46ePs502qNM9LTLnyWtQet3qvg9N1UL1j/o94PE2/BnaDL9e445IZp4U5wL",
-	"NUHRFLVxYDdhNh70++uq8f3ae8YmKbwrKoEorcE332Ig9EzmS4hShotZIRRVIS8wGtCP3FLOQGd0XjvJ",
-	"r3L0a1YLS3kK1LXbvYJ86evze0SfKJEWZP8xGpgFrYork7/BJSq1dkW+sIzEvLImL7hnN64J6mfmmUxr",
-	"q1EP9lmZeG7hfUx9MG0zP461ixCa+teuBEi4Tqr1fFIg5wCTcL5IgdPHWLMttj1Xt9u2d53cYaLDrt/v",
-	"7fvuR+I/Hr94/j7m/3XITW6aevK/2JLGKF0hv/5idfEzNCUi9Vn3I/Ggf3+oS4SG+qqIGBT/MZtHJcVY",
-	"xAE5822lGCGFlxUGUggH7jRgByeZ81ZIXIyry2RAncSetCsGtE5p2ytrtsh8G1Qek6IhUDEPtTZFOlaW",
-	"g55BTY6yB9qi4sA3CTrljVSRSCGQZBlxUDcx3Jm8WHP2T2lV3iM5PsV4S2Vt037F5kVhaD5vvT+h1P2b",
-	"S53R1H6p5aVMUQuzcWuXPd+wrS/391BeX7uxf/1rDDIc/PrXKwYXkztfL2R5j6EeYKttBLKksgX5kEdC",
-	"FiTBeAd4CDMFXRB50sWCgJLBxQPtdC4+LEmTAVbocvkyj8KvkbPi4CPayOSIq4NvzJW2uPF8cnVWnvgE",
-	"6651lvbh6VC3SbuIA479sU2TThguBvxpNW++AXFRq7xpt56hcydOUogqbjGTA1xJLZQrXaqUQYtG0Iq2",
-	"3KgcH/s2aq6tml6+rDIIhP3ksCHwdWNtabKurqYkCesqw11Rr6gxHnm/IR752/d4+HG1npu1d1WOiNtv",
-	"o9bhNqf+M5m4+Ggssn9zkS+1ZL9zlVChLejEU5Ofp0miMFr68ODRzSVeG/NC6iX3zv5MdMxTLjoq9Xwj",
-	"cJMEJx9UrLgLA/JGnsgQhb3ix+lRlR39QmyfWapLQkivt6KE1Qjrmygj2aRrRBEzGyv2FA6kQQwBY8dI",
-	"diLT4nw51BAKGbzsiaccsDM2s/NUMxrN8eePj0QMnB0yC6lmFTpRvcLEQ+3V6hFlMzK62oOegHAUy5Dy",
-	"pWfu2AfWgs+PArc3iqlqOaepYMJ8KnfHXHUGiEklGsKWhroaSAQ2G/d3Y4zSkdPr+0idoa6GAxGAOo65",
-	"UjVYI3plNA7GdWITyHoNNTdQhtCs0HEYMi3odmS8klZiO7ITwsKtI5plgoq7q5NUHXdapccp367KCtr8",
-	"ujpLyPPtKvWo71Bh9Uw/kXmWKltUD0BUHhtEd2/oAxywSge2gT1cbf+5LBpaV9c3tF6YO2j7lYtCXNfK",
-	"6r3sE1Q86AegIQc33tFR8wKVp2evDIBrvdcbHTcYHOGmKx2Cv1Gv6pOzfbzc7/xyPyGw69SCjjG4u/n2",
-	"XXd3hzeuwzu+6SpHE+p7uM/Rm5R8sydgbn5GlheP1GH0WAXRtUpfpAwrkBDkGj0ZsZ4zJitGajlaMVeu",
-	"pjVSL07h6u1zwxEjr4LHH+B8rWOXKeneL/xI9Q9vLvG5KZ4idPZf6Rk8pqWgLZoWlvBu2HUQ9qJPavW+",
-	"T+ettQ8rHqK1M+rCIkBCcNZ4hr0qA0idYI8RhJyMDNlz9v8MpY/UhvAmm07mGhn/l3A8bxJocZrsxyP6",
-	"CziiwdZDh4IxE313IvlwbSvr1k7ohhNZhjjDMObGvpNWkCD9rZDoX4LfUlxQ4fE5A+cRl/nB46SaPL1A",
-	"JHAXHuEiC3w6RotZrinYUqQY0RS7akZmAqF0UMZX5K9ZB+iP7lAFWPhT7fiSnjjl2mvdwMlJCLB16X+B",
-	"RIkuJw5iit0/2s5xDOsaakTwRZcHo5VXhxfggsqhg4hsjtIAG89QTdBheuSnh2Pt4jnpAkbeDYsaZO8u",
-	"MwncWVhgHGp0DpXejcp7NEU+Zs2NtoSCQH2n81DFoAm7mKvcKhw8qsJc18CKa+vVVCAIeI4HYKfgbDuV",
-	"9+RUja2ZzMV4u36woCTkBP17iqEm04RE7QKiU2rls+GJly7VJBtamPDTiZrKVKMv/Dn3H5A+DvuPIgqX",
-	"4K09Su2IS3NQ4ynGUrQPDw7YLeycw2mYwyvDXf0FC/UdeVi2oabuPzv5vXix3wdE5oODTsQqjQCNDRDW",
-	"OBcIXEvsEYLxiiPeVfGA+kA7DjGX6A7Hp36LCY7kYhBpLmwx0DTmfWxHHpxqpNUVBH8XIlPSOuU4lmFs",
-	"Jz4HMoPHS6oH4LTdm5Hz1IgH3gBwAJiUZlLakWRenmN0YHDVwinI4ABVB+G6gPFQVjAEpquqw71INYF6",
-	"2xEEM4bDqOAABh/GNH0E08arBO4mkVuijots4B5QS6A+GyHG5kjpxI60UsmIHJviAQ8GulshAzABUNB5",
-	"6WXmyvmJQPem6cUUftN6apmjiQPeYEMwFiwNDR5xnIdwKCXUF+5BJKSwCliMgtOVuIj5q+mS3KnI5xfB",
-	"k2IuVTr04CR3mjgdIupP3EXxjrwOXrifmWS5BZvDLmx0M1GK22++d8kWWs/v401HxVRrcEANEOhny7vo",
-	"iQOYhOf3UWpLNSdYJLRzcZnybQMUIpdjuFmsmheLWY/yPG/DZ/mp8dxRFUOUU3rX+Lz9DyOGhemVON4D",
-	"6ntuxmuycbySxdRfJlw4EnGNccAEfNUhRpuM//+d8Zj9LXjME6MnGSegPNzfok+v5DIzMnltzHOZXygq",
-	"92CbCbCLOfn5vlBJKl8vKdv44cHBNoXZNwrY0ie6ANvyXykX/YTukxBeXzMKfCSk40rdng646+/G72ZF",
-	"IlZ6npmiN9cXW8m3t9BBIVBlZtCxNcbG7OVFzCN79fnvRDqTF2qTrPoqM8Wrz3/3PqVV7MMez0KD0vo8",
-	"1ZI0gdu4B+EoP8qnP/vJgo0TCKaRoF303vVFbpe/hyN1VkKjeT7Uw63PZP4GARAYHtqnZI6cT/8kTSjA",
-	"6xwjMcgx3eXbFnOpVSYwNpAEJjwWPtxTktck+sMONcHbufo9rnWAVQW1sx3spuN99tUHON728uI317fy",
-	"9/t4oH+hB/rsqw9zoMt4rO30TRvVvs9WANphTBQOAM5EJYxtgAzPA0ZZk/wOZSmeEjYWnebylAsXhyVk",
-	"IeLyeVyKjyjeOWETYknrwD49UcY3M15AHetd6qUDROeoWoLwLiIM+GEgNagQTOYwGUwUjirpY4ea0WVB",
-	"ciTS5KLGKHYII1sonDVLlRUcqlxJtaOSoSYR1OREyIQkQ0FPhAYFAjHBPDslgj63gyBKQ33Yf7RerAwm",
-	"5ecRLMvVbA36vUcPohZvGuxBCj39utvvHx5U/U6/6ff6Bw8i+O/hw2/R3s6BfZhIoyx3f7Xc/v373779",
-	"dmvxMoye30G+vDs7QtgBamKdPZ3VjHMPSBqRTzIjdeeJynutj6LgR1HwvfsdhFGX6DPsknaEDoQB7dny",
-	"qttwtVUQYe/CmHIKgqsNDJiMmeB0/OyU4JlWgrz0ngrgaVdadwjpbb0JhqEQmNelLJespAT9uNYECnGR",
-	"akVXCqyLzJXLvERoZl5tBFtwAPkcCHk5g2hnxiUv8027YFXWcELdJYh9+9nZy71nT07E/sP+wYOh/ul/",
-	"f9jb3+8dkHVEJHk6Kei64XhK69wE2eLgEo4EKLMInEVMeFLOZjllol1CfsT8HWBcnsEXqCadUhq8lcvs",
-	"1C+++gX7a5xWtug6vw1c2NSCyvAjo/5zE7JgYzlmnXYuMYJEAeSVpwJ37B/tSZvJk948mbwH343XHpuV",
-	"mgnEElZtPX7KINcotOhawoKB47tZ2+c01qX8HPnYwijQDWLIMhIFJ/9HhLeG9ZT57zzJLHNm3hN2bAgh",
-	"/LsF5U5y8FtEkbCMLWSR2iIdR4xeCPVS+nx+QgpKiIBEgzHy2+sQ3CMvzGDl3kSqfZJ6x/e7QC+PZC7a",
-	"Ws5UxFHXFGrtDFCZPL9nxZ+MVhHMowQ6z3qPCuS/NZPiCgO+dVKn1fQ5U6ihPvv9cRfys7EYBboUl96G",
-	"8cK9MR7tohWDPaa42aTkOMVN8urx0w9FYnnXv7Mukw/RR5r6s9PU1xXA/DC93LvGmOzCLWKRO2ATX5hL",
-	"VCkGd0PdU0QURgCud24uFRPgXJEhNCYSSAO3Dj2FSSgZUz1dRej+VNeJQ08cY9VIw1w/COqX9RMYyArO",
-	"HzGbrmVpgAbHCq9JMADhADipgRYEQRREZvSFyldHhqEbj8rkAvBgkiJef9vh62P1lLKyTF2WG9DnlDQy",
-	"V8Ui1+VEFoY8cNRVB/yD6GXgTIiARNpcEYW2fJWllhOJEIwYYw27RF5umFILjELMjU7HZR/AgQVmkK8z",
-	"Apj1b0F9ozCUSBiX/tp96WKQfTwu5hOgCrpu43YprrLrBg+RDyHANH0Py+ESrhDrnCkxbLmYTC47bA2E",
-	"XYynLl8B3gy8waCHbnsNNS4CZgSkcK57NryYPIJTeDbKIXeaeW2Yzbtgs2+pMnIHpDVo8ZhbFccDMgLQ",
-	"3VxP/c05tpBNqKZ5BPefHZwOaBZ+Jo3QWo8D6pVKPmp5Pmp5PoDbLJ2+kuC8u+fshiu7JEvvzYM9oIzu",
-	"ztKEA18Y0ykdDGdSpxNlC85PhcwMo21GQ42h6sDrV5l8fIScvmBG/4jkj6nCFDMuYQ+R+qEmz8wph+Ez",
-	"V093Mqa+xM964jOgd8pWcvKUSXGHevWuZVi3IGNN+ca4PDWsuGKfNwzd9C2IdjXGP/afcwo6roUFI3aD",
-	"HGpeASyOb+LOxqDPs3LFf5H6HN+/dTFuryuT+1H2+AVEuwdbvcnR/24EjuidpYrjZhZ1EEJyAMSjFZgf",
-	"HU+dy5BOXI0oMckDDjd27TmJo8wKFnKGR05ekZDlSGbWOPbSltQ+5MchIwMxk55pd5tf5cK7lnsdBxAp",
-	"xGx1rUO130lmjlXOmXAc577yRpeEjUjObGELl+o2mCOSgwjtG9ZEJV4hzRHpxGaXBI88zQljpMu1+DEd",
-	"c0YdN9URWGUNspImH+okxVs9EXKM/rycXuqoTH0FUhjuPihFkhx9iqv+NYkcC8yDW6GrLDQS1aQB00SK",
-	"mHd/ep5maQGw4xWSTq7oDURd1Gm6Qxi1xVBDccuxEw2kvJQ1PEmX4Rq5Co6EVilebg6ZMbylyI4OkxrU",
-	"zkdyqEvhs/DNofQ1RaxjLsM4t5TxmoTRRjyY9EL/0iQWPLjwpOfOQCtq8ar6D2WGPabd1hq0xibP1bjo",
-	"Tk1uVfdcFoXKl92HoQCEPXanGrL/lBnuXfZ6MVPFDrKOJ5o/k4O1b//GO/aj3PNR7vkwTMS78w4bRJ0K",
-	"Kup7cL4kaSdspQzebfDVQtScIm4irMD5flXp7S+SUw+7uIlZr0z8R3795z9qXzWnU27k3TeEEWzpMbkN",
-	"3x5kUtp4zsSzIFk0VFtN6x0MhiV8xMenVIXAhoYNdY58rmSQxZfeVKsV8IF2wdhWU4k52Kud4jBKn2/X",
-	"NYy60dINg7lAYEBgemO/SHEktBlq51/XqbqfpIVLH1/J/jnwSJhDvd/v//TjBHbhnjYzNDNCFb96LPBN",
-	"G1+Jv/zTPwt+3XHfIdoHcD+KEMGH+odfPf5B/OV/+b/XggtLHqcXTvKoMJnK4fFoPi4wR4exmEuOvEZ/",
-	"+teDvviVC2AVX56JJ6+OxdnX3U8PPxEvsHbxab/ffxxaqarreLQaR0rdwmROOapmXLgvKkHkeJyrJC3K",
-	"dOgu7tShIRyXCSZxarURufGmd2ecAUmCzB7HjYG91ZBez3NXUlH4CN+hlgVsXrIIA7EX9UjfSuUm52ie",
-	"wOqFeMJXIFod1QKEmb23nOtnJayY7pyeONaBy1RTkHOFPDtvJ+pCWlABZSn58JIiKlFapBhcGjEo8kg2",
-	"DSuLhho+kg5VE9fFBZJi512OE5lTduIil9pSzK3zFgtB2B+xEUd4Gw7U6NPDksGMYyFZ4OFzO9KmGLl3",
-	"mIGFR1gGgaM9R4vVqSorCcOoyypqHsP8LWC5TVKItwbrE+bdqSx24MjltlEQNA9tVs4cruooODCYR1kW",
-	"8Ybo1pDM/zwiWgAK1hq0DvoHn3T797v9g9f7/UEf/v8/wb0R0jh0NH6TahLLdJHqBUhukQ+QPTn5qjtD",
-	"1M6aA/Jh/9H27sfh1PxM8lfYBVqvZBsGytE8YRYF0LePwtlH4eyDeOyhDrTZj0u0n518tXdy8lVnS8bR",
-	"M2E3B9qszYJE5faYIL+n+NTAZQNPOmG0ANGuRbK5NEKyoIvexdAMtTZXnYGQM8P3lnMu8Pd1QdEoeB1g",
-	"WZ/qlcc21JjnaIurithI+NjddZzIFnFbS/VfRfWHD5EfJMISgGjJK0nXPEwQeWQgu8XMmFUhggsNbJTq",
-	"EabwiIHn0qiFLp0qykFYp0c3WaJygcmAv3YuH5X6AZKD7lR5oUZTs8gpVVTIt6WW6+H0N7JwKwF8tsYP",
-	"fJ4rcdg/dAlx0JcmV+hETblXXNKhTf56nNlu50u1lF5aN6Oirgci2AXSdPU2mRnyHz19eiLu37//6Ag9",
-	"fnBx5blVuliHpimL3TE73ztSn1uKTYB95dJ/VD78IhwVq6sCR1XytrxTzcNNV8jdBm4e2yB535r40Dgi",
-	"sSxUBZbzMKGk4CuXS+yyu61cL3B0Mc3tUPtcWFvemCDCWMO0Ujx/9uIMRE1F10cBsDGue4ltDP383LgP",
-	"XP/RVHQ41N67nMwn6yWUkh6+S8hkSFXfSVph0jto6bTIJRLhFcFlvxRcmmMqHzTERn66S2hk06R8DJL8",
-	"KKl8lFS2uV6+WEjgf5Yb6OydRktun6X1Dq6Y3ZLDUi7pemZYxG8O8sIy+B7GqKCO2n2Ifujf0XSmTTas",
-	"oQ5vriapiKKBmiUjuLo6EbnTFVOXvIm9WqB/5UiQrGAHG6iKu5qGOribKDaFPkst160SjskyOTlAFIDQ",
-	"NxBlFtihLpV5jXebU0DCwLBDoKhzyVft3nDR798fa/xHBYlfWSzjSa5Ma08cM7TgftSHNJMuIorwA3e7",
-	"Oz/DffYz35/UZtNluuuFWa8lXallDT5BQ5X9wwOo89tNV/o7XdE49z/7Pc292HxZ106WO6HrTtjHe/vj",
-	"vf3h7u2V+yq4d9Lcqc/ey13OiXK30yVWLNa7axYzypsSwkWH4U/oH6LlTK3zD3nBfX2PVIWa2OTZwRP2",
-	"McfI3UeBZFmZt7m2V8J4eP5mO1X7HTpshHoPtFnDXhVjhkr3u3q/J14ZW1AmMIJ2hr/xY87pvhzqEj2j",
-	"hAGonw9XNamzr4M37YP+PuAmK8yElPsX6Au7jAKr85idOMuw0BpUyFAzVgj0rey6y95drJ7be9bFiBOd",
-	"GmrXUQbWwOZdHCbYhw8wceTraa4s8bqZmhQCA0UnQx04XcSikG9UkH/lnvXw22G+UrerhJ2aKxxCliHc",
-	"B9j+6WZnTPdciYVOv1vQ3AOD6TTt4J+9wZL8wqXVuhvekPXJJWO40GnRGrRmF3vPkQWt7rvP6TugiF9+",
-	"JeZTU5iZQlZlkl4qF32YapEsqA+YDwphDzAHFOyMVlRrtbu4bEUtj4gAmbr3rrfnAGlGfiZ2j5ejgSg/",
-	"c9g0zkxV265Hfltiuh8yOyP5vkvT9vr+Ea3gTWfydwNydjdlHNzde9/DMv/3huT8kWH9BaJx4eHxJDQq",
-	"3bdCns5otcNt3cyP8p7+OdhSNhCTdxYlhwizk8TrE9rTfdGUXRLctQJyLGfvy9h5LOxcjcFdIaB/AVHc",
-	"wuQZ4Go35PY92D98ePjp/U8OH/6MGX7XE9uSQ/9o9/z56cVL7VbjPbPvTDw4cGIborESxMDhc5HwsXcu",
-	"Xlu0qV5kJikLUaIyVahkbdTxK+rI+1R/qdxuDkGgTn+UU+98V8Ok8+xuH7Rza0HTxZ9SbhOWZTDkLwL3",
-	"20WWVWADRBvD/4NIfBCROpAcyWSKXZzKCN82Q89JeCOO8wujD9JETKWdCkB82SAgvXKZ7m8tIEHnR3zr",
-	"HGfqWpyW8YuNQY3bxS+aTAWIESpv7QDRi2P6mbxjeULXHGcX3tv6yLd/5Nt3vYfnSqPJj/bQ7lSrcr/u",
-	"fY+H8+0e35TbGXlrTDeTtbHUASoYUC2RYlQI/Olz26U5Rd6TPodhrnpUEY+pVHmx047DP0GNWBMVe0y9",
-	"92TsZr6daNJtGffnWPr9Msb/fZCQ/wE4Y958Hk3tro7kQgMexM4n8iRTMreMQYG+ABhRVUGbUCUwSKOj",
-	"8JfY9Mfj9PE4ffjjRHvv3U8Ti5vvLVIetc+sJiuTuZbGGgoN9Nk+KWDQFrJQEeZvpUzPeEVqJQpTyIwc",
-	"FkQ7tuo7cLupJsR+JS+U5bhUCh7IUluIsdFQE5qSrFJiiEKNHbYcLGgwbFI9p1YkZoz+H2B4cj5DMGpr",
-	"8hgLTZRKXJJbHw58ri5SRJ0HhDE0DuF30VDHYNMauQpSK2R2BREKVhWijVFfQs3mxRLRoRnikh2xrMmF",
-	"ha5EQ43ewhB6ODO5il2QA0GhwSNOjy2uVK5c4lMxNrMZmr16Q/0UZwe6Vu2RVR4VH6vwNjGjx2rgqpW5",
-	"Gmq9mJ2jsxVPH60Jcy5lgKfldtELWdK4YE3zoebgZKm5LRe24juKGryc9hI6r+FnqRWgKimUdk0HzVEl",
-	"Y7mgMJcBRo/jEiCwKLJZ7HmFUeI93J6oReXnPZlAjGlMLziKlHa4DxHtufDwaH2sFH8Zvo07iHTUGNPj",
-	"C/hXYSec512ZWblMeQxdh+MyYmhq/3EYSmS0snBS2PN8G1TZdonf2nPfx4NaOA7Gwafag02F4cJQI/YV",
-	"T6zPyrxWg3SK5Z7gHtvZuw1O/Qnu4taqihheCpv+Sa1TACOkeUX7yybY1mC/349KXTCkZvoZtcA0RU9V",
-	"cxApOn1JoqZ/HQny/xoNQnRhIeE3kxooQAW8k57cTXALf733Pf0xSpO37ykW0t3QfDN3caBEecm/gCxD",
-	"3Is4KpE9fRxj5RZnzwiMEBHHWqRJicxATVV8boeaAv3LFtYYn+gorNKJJvR6+PKehabbQdedgRlHiFcq",
-	"P3RsSseTiyoX76vYyMn7wLlUF58ctgIi8qjff7j/6NHBg8OHh/1Hj/Z/doJCcb/r0f/hm488/y/DuOQA",
-	"+wjFnRDchTZX74/0LLaOmyut0qspS03Obl3AhrWD3CAu/YvPEkLhzZhAymgX1TFXyDmRo1MtFdQ9T3sq",
-	"OVTqWCMDIcVBf59wNG1FcxYwnYghs3Dol8TlkhLuUmZpIs4XhYPCoZ6NpWbsTPYqMzkBzABHz35LETj5",
-	"excui7lXsggtbRPgK/Ej26G4O4AuJhtF5GwgrIwI8xNU0xUORC6vhjqRhYRKyGRXTHNzpSG8ewmQStT/",
-	"VM8XhWgfXl93qJUwOdRQny4yoPFqaRiAmSgFuY4Ngkkn1FD09cP1QiFLEWqRWycmsAhrw75oMCX8GgFA",
-	"YeAAAaQy4EFRJWMwOW3bp8f3O0RcGJHqwoQAS7RZiivjHMQSA+MRdgpLJoe6gjty5O7rNKk4ygX+8TgL",
-	"f/M3fyOeJWo2N4XS4+VQnym4H4JH3T+oJSanmIH3Xq6KPFWwGhPVE39QS6odj5zDEhhqglJFCcWSwKNm",
-	"2H1IcEbYrIWAq7MQB4cCQ+ArMS730O0P1MZo/qJEDQxuPaDy4m/PXn4OEx4Fkw+0Yi7zMmmQHhsPVyfa",
-	"1oCbYaGEncuxYoBU2PYs0/GMztDg1Dmihob65OyrSkPIUovyNvYQ3rm8EucmgVQKhQI9WlecyZkSb9Qy",
-	"otTgwaAiTo/EQ4ZzOUfDM+29X//apdsZauEP1K9/TbkgikWuy3Ed9PdLSoHtYC/wpneuZzGI04I+qyzv",
-	"qZpnconN5gsVg0cdA9vijJZBSNXhOB/XIhzTALCBKh/ChGcqyAYVRDERAQDP9wy8Fmnc3DQCNUCHCZrJ",
-	"Haqi3CMIlU6JOnD2tchxJISkZXJxoQqEeoVa2jTuU1Xky+7xpFB53BEpqGJEYogwwDhSO4X+QM04iuOy",
-	"MdjLTJyApEADD4Cy+OLg/Irc4Ru19EcLtk47LtR1sTe2l3FnqH+ntMLUrWKcpUoXliR3/BIOvI+IgzsG",
-	"C4m2ZwmHmgXl04U+gfq836x8oywadUXZGs5MosYZY7BZ2rlDHW5dK9y9eUSaIN8YQ2qRAy9qUIKa7VDT",
-	"9XiuEjFVuYpqO1BNJmoMm9zkbqRem8EgdJQZR+plEGZnhbqemxznoycI6viE+L8uWPgGouyEz7I41ORr",
-	"SQkOLeOkOSXVynGNia6DlFA2DMkP4wDfKRZtNzFEeWOXnwwXpEBpv3PE2YnjOmMaM4xZ0CxeI+eKPbRE",
-	"+xAcp50wggc2teLL10+7nwJQckZXAZKSLpEnTNKVWpFeaDiQHYK8ONz/tD/UbR464P6dw5iNc/sW8bAV",
-	"H4nnT2HLnpw+fyqyVCuhdAIpkJ+nGmHzjOUDOtTjqczluFA5tBX/TezyINPywFTAA/smnc9h05xnUr/B",
-	"Om34gi14dOgNKuywXdbz0YL1xInJFjNtfXgIsjOwJXDIA5ieH8QYPxI/+K0qfij1T7m5Ej+42w5/DPUP",
-	"3W638j+oJQYYrlj8IJbKih9E7GqI8QeWjwV96fEJ3Mf8QKTeQW/NQyyOF3RZGH9Wi5Luk76uYiL6Ug4F",
-	"sfI6En/5X/4fol+rwd0OZWGjK7GrzFdseDHUfhJQYoT2y1ZKZqI2UhevuFLAvRATOcacfhRDKvqiTZ8Q",
-	"a7rfgYqA1BLHT72ZqxxWElI6MWfkjMNsssrNla3SGyDy5bLheeVVCDlwIpZ4EN2NoWRRraS6HB3nMArv",
-	"6y0E89Wmvy1dsmUztRaCGYOMVeaKOY+Ucr8SOeYxQ034Fq8iyvqJ5yBsNy3pt8/fh6cAWSb6EMt/zvz9",
-	"wioR94CCYw6xmczE3CA7IrVwdA2JsEYqFe/3Hqju/bhDAJ8C6NrCoixmFVC3wuT2SMSfy8+BoD7Tk7hM",
-	"aZK+UaFVH2U51KmLckZywnyXaPkApo5v3rHKMrp2/RULRHYpCkPKV3N1zwo4056y4s6i4trlEob183EU",
-	"iZtCIjVSzFICoPRzSO8jYPsEziPLJSW7Q4IS8IJMchmiydE0dpwGYgd1sPcDfnTYf/QJ8YZhRi/KJYCL",
-	"oHIR70HJeug1/aLO0aOYtkfz93HH7xmcY5fI0hLXTPPYBoRUzMDvxQ44eJ6wEtkCRbrwGBhQ5EG/T+9s",
-	"JHwVTqJ1CSWBncE7jWKCJMWEQ1UH/T4EhguU4PAg+8jwrjgjGQwFOLYzKJamfY3I5cBGEtroLlETinw4",
-	"IulDiEwukTM8N6S8d5m8zpdhBrZ7FitNFAgJeRBYBVWc5wgjgOY6VNxxBjwh/ZT3er3YrRvZbsj9bTDU",
-	"cRwP9d8wL0MNB1TXhfyovLsv2ny1rl6hnaGG7R05KZIE7Op94Eh/5GlC5CjMULuljDhGKHq+H/V7mBB/",
-	"v38QRRu/6D/6tPmLg2i/14cvDvoPmr+4Hx3QF4f7+/gF7R73PsLCD/oR5exf88H+/fv0wf3ogCd0jbPi",
-	"6WJ3ONBAAvqDWjZYUmBn4E7zbCBeGQwLy5oBDGhdY2nxvtF34fq/uTfB1ipv6HX9Kj9+733z+HeoZpIl",
-	"SGAJ1raulyHS6s4gbRu66Dl36J2By6eG87GuQ47733rSXroCb98P5Gz/0xK5KVjTQSukLq3I7cNaoKAf",
-	"DiP02QL9a0MsiibEixKS4mAVkuIA6cbB4cMGqAsqvgbe4v5qXfv37yO4hWfe1napBrcL1MuD6z7fb6i5",
-	"f8DkbW03a1XuBxU2DbtP4+7vb1vhQVBhw9iBasI//YfbVngYVHi4WuGn+4+gwk8PDrat8NOgwlXwkf1P",
-	"DmEO9z+5/3AXILDTReB9HbWcIF/Z8K2Pl+bdXZo1O3+dIqII4HQ4yCthnHGqnyt9UUxDG12YNfvDOc2D",
-	"lmszkjTqfBmYKchyy4EPbRA8mWnLWc051CvK7Yjch7gQ84g+2TlTbnbmCIJ6m5SoqxMdo1bVZf9NrVOA",
-	"cGtu7tg7pYz5x0ZrOjXQLG4TB3xuTKakxlO2XegxY/Jz7DGqHgHq8WPY8cfwhfds6QVMCiH9QZ6kRXCY",
-	"Q1PvQm8ZVthg1XXXzDtZdl+zEAosKALLVVT1MYdZlepz9vQ0VzoAJh1qUoaLC28HYEV14IQprNIM6EGG",
-	"HMtCKNhZwaqbpFLA4YsCnXynNEOBTlxUVeKBnn/VCtATbmwkOEc+IYWlP9OS1PlWCINuqCVmfTBWNc3J",
-	"1SYFPmQAARMRaEGG2pDJlDKzO1MOJxY0nPtWVS1AjpSugRU6CUwldy8g7ioGvi/469sLf++jR3cm8m3h",
-	"brSTCPgLkfY+Mr0/M9PLRmTWEK6SrI8s8EcW+CML/JEF/plYYDJJvEdO+PutHarfEXkHhuOCaqRzIhrg",
-	"kJyhjBOPe0s+m3/Rdcu7m9OzSuxNrsYqxXQvVcK3zoH6FvaB04V+3+lGoVvrafpHL+RfAGilO5O0eW91",
-	"Bnd3QaYkG+87WpHKBL6TPu+jjaqnjb22wBuD80HmCrxNZ/MFOgHrsYrc5a68p4j1nr2rwPUEvJWiOxsl",
-	"IkziI46oc37I5NhLoRkYTtEQSUadd+7JFynwPmi15U44+DIcadiN0nna510C7z1OrOTit3DlfWSZ9+k7",
-	"DYM+hvqxytPLUox3Y3SU6YuTKPR+XGSV9FvoRjdOgcQFDnQURAKr4LL5j+hRPBjq/V7QylWli2vzaA1E",
-	"7AYVHw31QVjF2CyyRFQcu2uf36+36JNS+ni4WonDsAR7TcJkzIDSFyZfOqduia6e1fz9tboe9EKMs+YY",
-	"RJ/etpJ8jJ0BeDdQBtjAv4/6FbYW1fOZYvFKk87Ppyk/aa5wHLh1IFwQfYfQkWQlC6rjNtft7JSnBL7D",
-	"CqjwVOUKrtA12U7FNLU4u7Wkp1gD1g3RoJUdwlA76CzkpDNsuion30NfXJHk6aTocIQrryuupJvytGCv",
-	"3mpiWZ40rIPmi6JXoejRUH8SbpdKjraBiIPgStgOD8Nvg9Rvou2lHDgpEXn3+uxv1NnOALvApwoofiWA",
-	"20do49EWaRCyC4KiS0jE5Db2FOElqqdIL2GHmrxWj9FvdiBCBmEyTfPfOPfQMsEu+quiR8vT3z87FaeH",
-	"QF6zTFGgb/zZQifgmwh9eHluVX6JtcVWtC9lxui3ONgvT758IcYmUSRsF4sgVrsSqzYQ5RSIv/znfwbn",
-	"Z4jTCCYbHg/1PFfgPKQlwNN6wgglxlKDixZ7mVKOCezOkYgTBRdrTCew3EX4Bqnl09zM4nIhOz1RnbSK",
-	"k+9yqN0MOYdX5JJ5wVnRmZsrx1GWrmNyqO0crkU7VaoQV0jr4DdNNyzZIpPoI5ijjzPW+dtI/CYS3Uj8",
-	"h0gU8nyo0XPW5yKUfEl1xDxXk/Sap4Cii40tcjOfKs7QDDdPeEdJuP4MTRT5tlcAk3FKaL0FJChmfy13",
-	"ScGoAfJLpMXKlF13w502zR52Lw9+o/KHNIVujw31758/FJcHvQe9fRG/PP3yj6f9/VjMlLWIJpBq8eT0",
-	"ocDACbyUjFZBFiTRfnH2+2ioX352Sq9efvZ3+JqGOqCBRbQRFzotIn4jaDtGwpQbeKiLdKYiDzgKnNQc",
-	"QQiobkcpWP8b8d2uLuAboTTdeEMtxVjmeQrxwBQZgTEML54/fyUmOeU3McBM/P7161eQXkX7eJ1imitF",
-	"R4Xi8xd6rPJCprpYivNFcqEKsVQcmRAkKxbo8wVR5JSHEReHfRfXSCCnPm72Awgins5UpZE6nChTG7fh",
-	"YFKWcyVK2tMrNavmHO58ZJDfSeRx81D3AFivUgEuu3lrby63IcTTfpSufn7p6qyaZZ7CkRf6vYZ3kmzl",
-	"vZzeNdaT6gnYT0+xnPkD6gfmRArMmSUujEKrluMabakVh3AMRP+opakqUMSqi1G50gVzQYCzH2amSksL",
-	"TLsU7syVBvYe3ZODhASeFSwRN9iJl9WznrkIEG2KMNi8CmUD9/2aeFSxORwVE4JVOPTUrsiVV7Kc7iMO",
-	"pSEBC+4ShxzizYNOU9QTzwr0d0+UZff8RknCeh/zoQ5aRRydkv+rC+ngy+/2Ai+4k+UIjCUtrMomKCFA",
-	"pBbqFNxIA7FvoW+MTOVLMEjbhQZeDliFtqZQt+M3HEAKb40jHxMg0qQShlpJnISZFEAXDowXiESc6tmn",
-	"8io81s5U2rBSFlvc0EgqGOpydOuNtDyB73RB3tLHsuL1uNbf8tHgvvO33Owa2eCBd5+cDg8ePdrFYY6n",
-	"5GeCLK1c1o2XqZeFPZJjXqqIXNjox2xbH00o719TmyR+NxYm8Cf6zqXhKqZqtgtrscGOwg3tfe8t6W/f",
-	"t5p2UkahEfGOhBznxloYKB1AlwyI7nBU4g71ihb3SNxwlfmm+Fpn6WgbRBtBgDZldNoaaYjI2lqBaJXO",
-	"QDLnytBXrll+uwbGxvfobpxe3qdRqDo3H4WYXzrhWTmlsrZb35s4U6LA0wEuke62k2s2U5/PlshcQiMq",
-	"Fziu72SXla2hSwlaKpxM4KHnUVhBt8Kh9h1FtGYbYRw7n13oMCcxKftfKlWEXCQpZm9PM+zW1/wRJ2Br",
-	"APMrU5OxVVgUxiuTPbCgAhWamMnEG3ywJ6INUbiuh52oomoGwC6lQSs2cpOGw4wCQE/Upzom6Fyh0i3Q",
-	"qQ512+tQvWSzYiUhlXWHWX0/01Apo4SCsIzQj6IJujAKZDSYDBgiTiS4/pTAjvBqVBg3mA5pLOHvYDq5",
-	"9Sy9VH62hxonzhs+8BJ4NPDTSCvnlobAShtuAreWZ66xrYCF34GIf/nls8eOfN9SUniHzAV4UkDtQcjl",
-	"oTh/lRt9UbvAe9vnbvvan5yfKX9buYJrLqzygJXb9aNc8FEueO/XszsaQpY7b3sA6ZtuYFYadWeyUHkq",
-	"s/fprTE2eUIIzGzy5jYROWVskrWJdc+4xAvfyfdJCWqNbUy26zr0Ebv1vaTbXdkqO+XZfU+pdccqZ712",
-	"rlyOXNc/2Pq2AKx3axg9hi1zqCfnomM0X8doaHQBJup6LsEcOArsdzH5EcZjYFjlhRoREk3M+BxxYTKV",
-	"U17a9k//KmRUqmZzNS6kvlhkMo+GeiF+K+TeX/7pf72PLFKthyavGAYJNGOeq7nM2SkIUAIpgMUPlPBl",
-	"gXXSInYfjyZoFHcQgzxqfs3gQLZQc3DhyFJAeGI/UTDWXwI0CNlvZ8+9WJzmQ+3HaTtHIjATRGifxSqc",
-	"NRqB5L3DwFwSyC07GfyWH4iffhT/9n8T3IU9bL7j3Z1ylckCmEW3+4Y6tKmOzewcgxfKBu4xkg8yuzSM",
-	"e1bIvTbM+E8/ftUZ6vbfnvzuBeCMiJ/+9we9/d4nR+LJIpdAc/ZOnr0+PhFffHn8QhzP5z3xpLcPyDqc",
-	"E9lndRtqBg0HWwSQS+BaEX4Ftd/tw/6jDemw6mTtDjIH16KvE3jw+cv73bPXL0/+0AVMFXxe2bsYOd60",
-	"11uDB/gizZX1iuuH3f4n3fv914gSwIpriBJpDVr+7I1m5YgyAwWfv3zdJa33PgICLGA0KgdRl8YgTv3B",
-	"PaOXtpbxOGrhjiEM8e2V3bU5/pm03itLvVYHwzeym8Hbpfz1t3jczFHsfQ9742MUwkdW+X2zDEQyAz9A",
-	"EdCGWyb8Xbuf75xRbtQzr1Ltm/UL0L2/AjXxllSqJE4fVcW/BEzzdzlbu6mHKafezsnCnlm7UBb0jVIn",
-	"wAhCNaLt4Zr3Dz4V52lhO6XpBfzuNSFAW6fyVeNcFV6Pi44YLshPZ8sjj8KmcgfNDc+Rg2SY56HGPKXo",
-	"c4mhAJm5AJZ4PZP2Grr6LpxZgEKLyoEQR+lbTyAqj6MWjbtmMtzexI+d/plYHWz7huhSXP8g9QWvLDih",
-	"amSdf+mU5SPr8P4pGxINIWmzBBSNadCWzAJ97QMUKQ331oTrVF2aNyxYYk1HbJooYTb7+51SutXqugQj",
-	"p4wtQx1ghjoHpxzrTZgQkr27MeModtfRoA9mx6iQhsPV2aJp+Zgw/xfBYMNSvPsxyZVO7HvKiURfgHRa",
-	"A4pGVFenOArTEAZhayj1DzWEqfj9H4s2JxgTsc3MHKBpEW3mXFoVAoLPlCQ7MlvOzx5jTWXoXOxKxGXM",
-	"T9ldsiDrxFyVDR70IZshXJW5yRwGrgWdVyF++tcDcfZYtK9kDvkLSYH107/ex4fktdpBRxOwbg/12VRd",
-	"TWUOIUvw3/azs5fi4acP+90DHs7XyhYXGMSMzpv73QNbVh6J/e59gIY+6B7YSJx2D20kDrv75Liz378G",
-	"6Exwr++gwkrBREqKrSwn1lbDHS0FuCBsgzaFj8k78n+FaBCgUGST+1DHvoGBmMjMqhj0mpepyUiH6bST",
-	"FgcTprCECsHB99Jk6FSLESgTdeUAjiE7SX1xiqnK2TPULzog5NJ6oJOvhkT3FF1DTaa2nISeOCbwYLGP",
-	"uMHlqMCUL5MjAfgSekzpA12GSB3uCLS3Y7rItpY5omMXbi5Q6QqLiMdK8IUeBYwnwmaMVcRhiOcGgV6W",
-	"5FI91F+cCLzIk0WuLMW3y/E4V0laMGR7rkCVXMClohNx9vIVJyhYZxj/nSqwN2vukfcP6dPUDB/+99qG",
-	"H+3WsDs4T698sQbcnycIJwL0I3QtB+849Hu/XAvcBBvjDqBnn8uioXV1fUPrhbmDtn9vriDkdlk/k1HJ",
-	"BmHgW5WARpTppwiI9LpeuvfNCSUPwnySB5V0kgcfOPsbnad1bswqT2FS4Oi6EUUeM10nJWn8aKp8D9nS",
-	"IabYcRycAs0daIrboyhBZDNqlzksTvXmDdgq2ut3pU7B62FvnpmiZy8v3hP7ha1UYo2p3biGglReC5Eg",
-	"vxoO+uDpQS5lEPIOnNWInIHZr03pAlkDzXcb8URDHbBCNM+lQxnXhqwHnQqFztaZcl59aHTFNGcZ3N2n",
-	"DcwIsCvY602X36vMFGdf/e7jHfjxDvx4BwZ3YDqTF2rPXl785nqW3SIAFknDx2vs7rMlh6SXglmRdkeC",
-	"qNgd30rQthovctAaAlU8VzJX+fGimLYG3xByPqrX14VU0FuXopEFtQCCdsAiHyitSIvGfh0uxaNMklxZ",
-	"K/bMXGk5T3tLOcswPHOiivHUAeK0Ve+iJ+JpUcztYG+Pcboyed5jxXvMbheLPGsNWnsYyMdzVe/3syBv",
-	"1UJbcoIuXW/KGM52qUewnV55VKFUA5LrU8pmGtblaARFtQVgNcAA2KBK+rCh0mcaZl+Jea6SdOwAgZ2C",
-	"sQLNGdZXft5U6RfeQxv6EjrHB4PED5oKlzHF1VzekQ/eq2ezLqbKoaJMlEoqrXCEykozXzXG1UZloHGZ",
-	"L5M96zUEToxVUPt344aKj/H2TccyY8QIG/g5cZpCiaGsJkvHqQqnlQs01frqGSnkws/pQVN+fXQY9RNm",
-	"qtGPKlPjIjc6HZfeppXFxdIN1T4HE5qyPkcw/jlTRZ6OXf3B2ezVcWppt3z79v8/AA==",
+	"7P1fjxtJlicKfhVb9i2IzHIyGKFQKsVAATcyJFWqS0opI5SZPVPMolvQjUFvOc2Ybs6IYGVq0XsbGPR9",
+	"7XkY4D4sFri7e597gEXOYt+ysW8X3Z9h65Mszh8zN3c6GWQopMyaq8F0pcLpbv/t/D+/80NrbGZzo5Uu",
+	"bGvwQ2uqZKJy/OepLNTzdJYW+D/wJFF2nKfzIjW6NWi9nipRmDdK37MiV98vlC3E9wtTyIGYmisxk3rp",
+	"nluRFlacL8ZvVCGmJkusuJoqLSaLLBvqdjFV4nyR26ITibnKRZLLSdFNVTHpTotiLudpN5eFymAcXR5h",
+	"t/9pT5wpXQijhbpU+XKopbZXKheFEdKP6CotpkKKS5mlCQ23N9StqGXHUzWTMKuZvE5ni1lrcLB/+PDw",
+	"s/ufHj6MWrNU08N+1CqWc9UatFJdqAuVt96+jcq1eWWydLxsXhxcDDHHNyIRDxf9/v0xTgL/qY6ufkfP",
+	"rlKdmCt6GA9EjO/E5eLBmsT0UjzUVo2NTqzgZYM1vWeFTf+shLlUOS51riZplglYtU4kVO+iJ+KDfv/o",
+	"6neHsZiYfKgf9Mv2paA23WLhXggzEQf9fn215rIoVA5T/NMf+91H3/326Op39I//oeWXyhZ5qi+qK3Wq",
+	"ZjLV8HhlsU7dQAp3pMRMLoUtYA5W6URocxWJYppaYbQSY7PQhUpoBa6mJlND7SeTqUkhUh2cuM6RSNQ4",
+	"V9IqS1NUcjz1J0TqhNfLDrUsRBGea1monujDGZPi8ODRnZ6dU2VVw706o/2NRG4WOlGJWMwjsdBFmlWG",
+	"xrcptXiLhLyQqR7qduyb7/oVj4X6fiEzK4If8X/jzpHo01VMfVN3MkdV5MvjSaHytfODa3ol00Kcq4nJ",
+	"lcjhk1Rf9FpRC7YmzVXSGhT5QlUGs6nft1FrLnM5UwWTsJNFfqmePW6+nmP48Z4VaQJdpvB4LotpK2pp",
+	"OcOGk41D+R9yNWkNWn+zV1LQPfrV7n399bPHuBDPEjWbm0Lp8fIPqoFOHItxlipddMdTY5UWb9RStKWA",
+	"72E/pLgwJhHjqUnHqiOKqSzETL5RFilckacqGeqrPC2UsHKieuIJUELx6uXZa3rZFibnt8cmT0SBH6eF",
+	"aOcLbQfCKjXUMVyOQp0udByJq2k6ngqZWSMmqb5Q+TxPdWHFydk34twkqbKdnviDWlohcyXs2MwVENah",
+	"Li8v9Qy0uZiq2RHeWZgYrCvdYL570JssFFOtoc7NAu4b7E7QNy3E2RfH3YMHnwJZgp7MXOUSFjHCmw47",
+	"N9Tl7uOtRhJgkqWQ8EJuVYKPlR4buFd4ZUT7aorLN5djBT8P9UzNzlUuTJ4ALzJCG1j0olD5kZAinktr",
+	"r0yexIJfTJnomEXR6Q11V5zJGU44ElbOgqFi78HEIjFJgdI6SgQHKVOFSgZDLXCWn3xi8vQi1TITxNw+",
+	"+QS6w7Xl4WMXtpDFwkY8W5iEEPFzM8Zu4w5RvTg4jN1TNc/kUiUDAec6jnBs2hTTVF+I1EIDcK4KpWHS",
+	"NE7mr2OZ56my69qbyMyquLIQSD+hcZUHq2FyZjj8Cwx+IA4PDqDzdkyMfhB28ge1jKtLDMc1U7hW1bVM",
+	"LfOPVItJll5MiwG+RZwOpyfhfEwMnD2cfQF0MMd5wBXBfo59g3ioJzLNgPEcXl/D8B9cX3dEYpTFMwKC",
+	"DZ65N2pJnb1RS+gJx2JylcBg4HmRS23lmFaBzjNe4ogWBNqgtcYx8PV8DXcrhsbgfXU9VkhEBkJ6nmCB",
+	"zdHcp+ZKC6PdmRZC4zWjcUTCkowEc4XXD/uP4HbC3pfXOLV2AexHwz0opgpaQfqUq0vzRrllw9f8JqYT",
+	"HD6P5EpakRmL98IRWdrXkszWNrjOe54rfVFMW4P9g8+Q7fi/o4osctz9j7L75373UW806H73w360f/DZ",
+	"22aR5Jm2Rb6YKb1GqE397yJNlC7SSaryCImIsSB3+E0CGrqOeZSd3JaJPPOd47BfyQt1ssityZuHHWt1",
+	"XYzG+EbsjtU8V5epWQD9u1BHQp4j6YBDX14Z+MnP4vuFypflNKi51rZD5vGhCLDQ6zhvvtDvl+++he/t",
+	"3GirUA74XCYsY8JfY6ML3nw5n2cpUcm9eW7OMzX77d9bGOgPW/b4ir6iTqtTfSGziclnKhF2qQt5HYmr",
+	"3MANW84VUA/UShYK+IZNEyJi1OxAzNy3Q/23Zy+/jEBGxxMM0lquhBR6gcznXGVGX1ig32Kh32i49pNU",
+	"ZQl8whdEgMCfS32hxGVqMlko/BW3WnieSRTOUzNYmiVd2yalsOu1wqbV4S/2ajpkKP12S9Vpqxb49UoT",
+	"FZ1iq1bKL2oNsSi+ZSPwNu74idGTLB1/0HOFV0hZs8jHIL8C71dwpc/ThHiDY1ltSUKuACKgrkDkyXIl",
+	"k2Uk5FDTT0DLzKJAHl9EdcUZjySw2rQk0sgDHG8damKunY8n5YaT8hQ3KFH6Qx8VYuaZHL+xZCghoV1k",
+	"KTKzVIv4uuvIbRd/s3Hv42Zu2sxnulC5ltmTPDf5h9xQ17FQ0DOpSij0WxBajc6WYthKKy8NW066LYXj",
+	"5OP+btzfL03xFKwvH/quagnigiPuJTNW16ktPu7Zxj17JZeZkclrY57L/EJ96K3DWwhamWIubFV+qfJ7",
+	"VoyNnqQXC9D/0LL7cR837uOZyi/Tsfpay0uZZvI8++BbmchCnkurxFhquH3nQDnleKq8IZp2Nx0r0rUX",
+	"RQGieWKudITCdnuC8j0q9R0yXKfaFlKP6UtlocWEKfa5GsuFVahS+r7BBgNCv9TJ+Uc5fNOhYXNz19ub",
+	"N35cWqZx918b80LqpXNB/CLCWeBAy2WBZ8p7cj5SjPe4+V9ruSimJk//rD4oq3+RWpvqi6hU8yOvvJtc",
+	"kH0tEedK5ipnr+XHI7D+CHz77bfd40UxVbqAPVOrZqf4c1zL2FmcRYyycSxkUeTp+aJQon369ER8+vBB",
+	"v7PZBVU3KNJBmudmrKwFdvVEF2mx/JDn6VuVZV22NaV6vmBr9Xmu5Bt0/iwy5SyCzLiOeAVszG4ZYHBD",
+	"bSYTpRNgZmhEKjWHRaY+MqEbJJevtV3M5yYvVPJCJal8jSflQxuGkJHcs+KEeu3CKIClgCRjtKp6z4Qc",
+	"gx/BfiQvG3b2rbv+uDbHuGJSj9UzuGrwSCZJCqsps1c5LG2RKtsaoCOsvkfl16KY5spiNMwRRSTA7jhP",
+	"IntqYbOUvkg1WPoSNZGLrBBt8u5AyAIZcAy5lWaqmJoEydc8GMcPrXM5fjMay2w8yszVqDCZymEEozkZ",
+	"LtX1OFvY9FK9CLzrQE5k0Rq0ErMAGTwqAwH2+6X3nczQsMxlJ7NUj8BLOprk5OSCTja11xhP0NTyexr6",
+	"1MyMHatE2iIdp8VyJLP59MabeIwvvY3I3gLbuuN3YJMbmcloku765UzqRBYmb4goOJkqsPRdQTwB+isX",
+	"Of2XDtOlypN0XBzhH+iyI0e+TC5Ta/Il+mQKNbM3unqgny/lTNF4rp/RR/vl+so8l8tW1Fro9PuF4t+B",
+	"m/IEVLbzrK9Hub3jvYfDmqlLldlKsMuDfnAoD1aDTejDfGS/X8icpMd3OOFmUWSpykdjY97YUXJ3s3MN",
+	"22KB3sQ/qztsHNyfO27hpcrTCTPA1dtcPck//ubxj+AkCz4hfVjmiWg/O/lm7+Tkmw6FikHEIQZE2IJC",
+	"SbSZYdgEuth64jGTzoN+JCQoAOLrM/Hk1bE4+7b72eGn4gWSTvFZv99/PNRjmaXnzCDD7unWZPLc5Hj7",
+	"7lmmucIqDnI0VxxgeBdL/NY/Med/r8bIWUsGUnLWHfgPBQh51oPhESYfq8hxF1vylZ0Zyer03p1L7MIN",
+	"tvh6Panf4uMGQr/FV41kfovvKkR+d5pcocINJHerEVQI7jZfVKjprYjmNsRxh69qlG+LL6tkbYsPdiFq",
+	"IKMTYcsyAy5ZsBQ2kjgr2klAtdbTKxT4bhzm21Cn/WO4UbWj0XRg196b9dcx2kgsNhOC+jmpnsTVe1jZ",
+	"s+atXz1G4QXbuIffNVFhdzzq4Zw2vdDYEEj4uMC91ka63+89CIWDXr/f3284Y8daZstC3Ujtq/SaImq2",
+	"DzOKWt8vpC5uZOc0mK/w3bco4d34zdfwTv0U4vj4+8ZlDjvaUdHSQtLXEGvkPKJefqCob1DWwdgB5g3b",
+	"E9+ycWj19cKFLQ11eT+hDSshZtNiUORSxKkd+cijWJwrDOyJy0fkPKDQC4i3TotCJay/DbV7T6DsIY5H",
+	"13vHo9R6yQa+LSc1NnqsdOHCYGE0ksfD4v+zs6DNLFW2EmtEGQWiPYe7pAtnIHLCj8ntPTFTUotnZ8K1",
+	"cuTEhKH+tP+Xf/jP+wcPxG8iiFydGS2enbzqvjgTc7zHIFNMcjMTMzUz+bKD883kxQWH4YIlbqqyhJzY",
+	"tBcQ70RBUakV1//7/9QX//pfRJJmC6SM//pfxISEOpMtZkr8609uunJmFrqAB0m+FI6OuHBLv89DDSet",
+	"jKyHYUBkPJx+HkdFuJPjca6StOAVztXFIoPf8MOzl69g3mqoMYzuSMiyLTFXuTWaA29c3EWu7CIrSDys",
+	"3tNEjdOZzGxDbgQMVRSGnEiYVONeRpeSkglsXEl2CkHORtsLqcx+f3PMPtyeQuGqjTJn8mmgWpuUGHdr",
+	"Ru6G7EZ5UjuiEzmaphfT9TJHKDH3bxqSbxNY0J006fY4v1Ea+8q9eUZWan8Mb73CZQvbU9yoFZyNEZ+N",
+	"1XPmFKT7EBCvtIjdKcOIY4ob7VSPVMi39hvTQFbp+SJJiyeXagtqXr0gpYZQs3xPJUUZJ0Yrl+mUL3SP",
+	"YqaTOBIxUtsekdrybzmf5+YyfJIrGKZKMPipZuWPYARNkbdfYoT/RNSyHyQ01NxObeNlobpFOlNN7yaq",
+	"kGnWLETOZV6k40UmcxuJVI+zBZrtpQv2y9GrKK3RvcYo6JANy6LlJhi1vAzGvX+3bh+fm4sdd1FdujzD",
+	"rdSZ4LSs6DO1GXDLTWM9kcg97JrDQwwCCDMedJ2wrXzApnEU5BwDDkI5PB8c52mh8lQSs5svzrPUQqjA",
+	"xSJN4OMGo0GVrwx1lbGwSQH4CxiBxTxXY5UobIo2V5wvG7jNUPtUqkxJy/4av9Irp2uWame0W9UWUZXc",
+	"cXthCxeFSlZX+im8TolmKGJA45DGlyWCAyzct0eUhoFZNipB4oN94crEdCRjina7mi6Do31uTKakrl6b",
+	"lTlnG3JZS5sIHgUYkcw53P9IaMiyq81gKuGoaIzmvsJ/F34im5SyPzqaHrWg2dZ3m026304V5laUNn5O",
+	"AkOZgIYC5DpRVRMvmnevUqt4RqGNd3XVttEVKgYG2qJgmYPGKICtcSq58h5Fn6XlFF2Qp/AeNZJOCxcG",
+	"9M81G6hsIfw7sCczJS1eVpQpwz28/U41azDl0NwZ8+sTlfeiqnLyGm0ktOWCN6UO4s4z8wmoFaUcD0Rc",
+	"KvnA5UjLj6OhjgMNH36pK/fwzOvni4yyyCIRe40cG8kV/HKpvLw3Ip96JGKvoONXoAUtZDYCJR0esCZu",
+	"sZWZ0aYwOh3DL0meToq4J4Knou3XDMgen5SO4E2wpDmRRlUYICVwYMZFthS+EQqnQZ3H5G9Q4ZP6QvVc",
+	"hxhs5XZJyEKk+kJZzhjT6srnitrMzEtuQPdRUl7f2WPvYceA+TKJCH4ttbaDvpgZTFQbK10MtZNDqA8b",
+	"lYH33ypbXIDySYIJKamiTSmbv3/yWuxd7u8VudKJjTs98axyx8VCZ8rakGZkKWXiC2mH2i9qxJcwTGPk",
+	"7HyF2fRTqcV+X9TGOdQYkxq5fqiBcqvaRZlV7HQ7USORkDQQe3V6lOpRIgsVO+Jb3YyS9uYLzTELaOl3",
+	"DYiZRD6c2aNg1vesiNX1HK6rP6c2ZvqZFkNdHXJ5vkzu1zLCUSOxhTVk+75ezNYY0qomtAbjWWj+4uvV",
+	"ilqhvWvN3QptX/hWcLNKExeOxJ39VtTCQ05EqrrUSJv0pcovlEZKBKJGakEJnOdmkmYqIEpMh6PWdRfm",
+	"3r2UOe4CLAKSqReQnMcLQQ/cauBfz+X4zcvJ07RwD75YXRV8/rkcvzmprAw+Pj3zq0N/8xKd8aye8ALh",
+	"j8+CVeK3aalOaaXw2ctyuWi8wZrhg8e8cPiH68c+049p7fDxSWUB8dErt4qv3CJSplBprWmi5s5jVTPr",
+	"sA2jJCCg+t1gUwQ11v+/G3RKyGBKUbps4KpXpmtTsJSM/Vtk1ARahyfxUmY2Ev3eAyC+/d6jR49utHc+",
+	"evSoYvF80DyqIjcZxmHYHS1/Z1N1NZU5SuvQCMVQWtF+dvZSPPzsYb970HGygM9+gpjbLNVq1edF+hAa",
+	"Jbb0B/AXmbna8gPcb7Xly1cy12AC2GFA7pNtR1STcXh41XZqA6nMOqos2nelMMWCTSD28kafLrJGEafk",
+	"gSAutv2fqhAy60XiJEt1T5xM1awnDh6K9v6jz/Y74vDR/c5AxPvdAxsPUUAno+K5WhqdiJ//5QDYdZsn",
+	"0DmCV+/bGANw/Dv3xdnjIxEfQCOiuDIgIWirxgsgOu41z++xRTxoRyI+7R7SNyL4JILmh1qem0slfovv",
+	"u+g6zn9XmbkSf/mnfz6gng+7+xbQWha5WO15qH3X+2HX+/3rWBRKVz7h+CB8G82/ZuKFlyo3gyVrRS1Y",
+	"jlbUOqC/YDqtqAXjgd/611tyBdjUfWoB/nXf/evAPzs9dP863Pfv9a/pZKzJdX45l98vMLfeqkJQgrJo",
+	"w/399HCRl3d6DiRDXzijlcsbf7B/sFUe+ajbCGkTEajIrs4IZ+knS5P41ssySsIgbVUZ5pclHPIMhOSx",
+	"UZNJOk6VLlCCrkoFNibteGwuZZ5KPVYxxvSo2bxYRiQg09W2ZJ3SClqHbvA9uIyRiFlvRPkrhoghRoWI",
+	"Uc+wqHUPNWjdDRZsOSZ6MZJFo9ZXim6gKLu3q7xikylMlv6vld/GgYVno/bq3oNvcE67edabvOrhzqxO",
+	"/JkWM5OorAsAPAx6kah8IIDVyFz88bwfifP97yJ+MCK4D/FHfPb9Qia5BF2W34vE+cF3R0Ib3eUGsHUL",
+	"gnX8Av7JppE2y8daxNpoerfnM71H+GvcqcR6bRcOwAajB00LsV6OOGmQHhC9ilQj9GA4E4CXKrbyaket",
+	"8tA39et+A+UgT69dx+GuRcL+/F/bf/f/+3/9w7d/1/nL/+X/8/P/GxxEV7h6wXu0c5Ulu7O127ywZMne",
+	"fLE4mVt6lyL6JhHsY/s7lkyasLlIbhaJusgVeBAnYpIrlZhZJDRwKzEPjDWBQ4nCVkeXKreNEu/rwNcI",
+	"N4PeJwLl1T9CqSicZR/f39vv9Xv9Zis9R10ZfdOFfuJffBu1wC1pm6yW4wJ8HxiOSwOh4bGxTRtna9s6",
+	"avJpWjzN5EUTJZkqeZkqW5A2eVNDqGmdTWWOprg02Q4ZIwpxSRrtoz52p+YeSm2R6nFB99c6rWRCqshm",
+	"z2LmhfiNE6K34Dag4t44PPppBFbw9YeKXhLupeb7AVJCZej7TUNH8nrTyJHwwtu66fowfy8XTLTxkCbo",
+	"91fOIoKIdp2bF9OT8y2gWC7Vl/5tsNeatJFJUUigN6OwSBK5lTK5cAOOxEVuFnNITVoyJU81MXObluxt",
+	"+xhiGOMrGFbThajEidUTXgB0QiVVAg1MpFD5LNVEUdoL0qQ5yqrCYju72ufRYnjThE7xpbeBZcYmG2iq",
+	"X/NEXaY0Ztte7l13Iiey/9v/eiV+J7S4wgkLO5aZ2nnk6DO6cej0Fr+PNiCD/EBm2ctJa/DHbejLd3XB",
+	"91WuLIN0Si08dfaXsxIPQ57cXPHBIz8ABeSNtqdwNdm4AYDQrTq9sEYmQL/uyml+V05PQG1b3YszejUI",
+	"r6pO4+uTr1+IsSm1uTWRQd5gtEJNnXA02orMfcNve3LHvO/G7/g1sEPgKR6NpU7SRBZqLTHyb4DNfWxy",
+	"h4wWy0VhYh8+hDrMNVBzbBj931n6Rok2qj5w6shaDUsUyA5rPu5sTbiI/py4UTZRLzdXMA/qZpvfF+aK",
+	"O3dgijJTCcs6Gk5allpEVxR2MYP/aIeWGQcEplkS8rPa/g5/6z9ZvcivHTiVEgvrsFcRjJWAKylohLaH",
+	"bjHmoSFPC0czQqO6Su58VNz3eGqMVdZBnNlSxY4I1NK7EVhMoDPA8HUeIY2dhOVBZAX9XNF5TGqz8tO9",
+	"83kFQ5X2DbEy7PzPKjejqdRJ1giqC4cLXqkSA0v5xRyOKK5UDpaUecHBC7lJFmO4RqmepDotlDufR2RM",
+	"cOuilZC5serm0BICcyMC7kW7VUEuqgLmOW2faZ8TxMJT3bz6TTTGyfdNd7K+jDWFfpWbVBTOKp9HBarq",
+	"xoEOvHMo0JC9MOYNEV5MdpJGSV8914gqVpaKZhgYQVY0r0a/MiLj6qcmH99sy6pZetbET8wMeTvxkKLS",
+	"tL3meS5t2higs+QYBxcwW6arpBqcuYltJH63sgg5u97NnHkxm8l8SfrmPM2VXa+cp6AyyUuiSGMFgnPF",
+	"Ocl+EYHwjBWfhNHqhgX8Y2l99cJeJm0xCoPZmzcrkxgtEb4oZAHEwTEYWcTVgAkajtFqC9r2TTiAt9EP",
+	"pZSUZa23K0EUtPTuGEQUjxYsbdO0gk1ee8Cfp3bXQMNbn5wdbIm1M7RiCJB2NDP5jWfxC2lfGNL/A+jP",
+	"m776Ul0XAUznyjbYVrW5YDzbLPmXoX66g4UcY/FkaNqkOy+TxA4CkEoybLabbHOdiJ0iJiPgJbMoxmam",
+	"SMfwlsDJQqNz6p4V//bfUJSE5EFSPoZa2SKdMUKmHk9NbiPvpvHeccHe8TJWoxJXAkZyF+Z08k1p7By/",
+	"6TqPv0qqfBlUwaUlrN2hjrl9ChSGuOW4J45L7FZb5BL1QVgq68LYyVZse0P9KlfAOZDfI2MnSYhl4YWl",
+	"oaXguIaRzP3raJEFFHmiTzGEAelkhG9ahJJutP3TQq1SGjRSQegjmIzMhFc0zDAQbfwVpk+ZGIzPAe/B",
+	"woMqYFVnwMYIisT4+0VyQXbN9cGNq1ZUjNIkerjyNvwm/b1vMGGZi9H1Bhh5YE1JLhFyWUiRmYva9srr",
+	"1DaH3fEhhcadE87FZCTE+iEbsxWMceQCzGyqIW4039Id56/mSdC+f3jmO/KPnrken3OH5cu+5xBzf8Rd",
+	"/bBhXzZqx3zst6akHF/hLUhl458erm29vFRbKvTFVBVyl3dHGyyYTChGu5iTamS6vt7lGQqPeeVQu0nU",
+	"Bhj5q+uOeLkHTeu1lurTDuxG8V9qtWJ0LKG1k1ReaGOBoEFmTfknXLVSLEmLGkiiaGtDHgOTgwKXG0M0",
+	"s0J+0fKEL1DMTR9fcUFXZBjahKNBJLzR0RVcepgU9uuJMPt/dzTgjeuhQ1u5xTDLMSXQuU0fNfXoDL7N",
+	"wb1Ei3dt07s1Gp0OubzYeZQ+SA73qznfdr/f//mndm3j0G1VWdXOXuXP3U2spAbuPgPSxLfc1CChdRR2",
+	"2YwRmy2F+8ASqih+sOvcSGleZ4OvG6rRhuWryrhz9E4h1nRw6tcgWDw/Rn80gx1Zs2rBqVu5LNHKRW88",
+	"a8E1WUsYz7y9t+4CwDwOxO7uieMyyBiDL+aEwTUiy3185LN6KGdU0yY6caH6ditquVBdHDblNG0bx1mO",
+	"+RW1euoaDX46LtsPnp76rvzkWcfZNdWrEklyB+EhFQf6du1RoY9RGSWymvVVOg7wJfYMpxTEA7H/YeR6",
+	"EE3c2U1wvTPX7m5u1bv0i24F+NBIHnd1/Nzet7LqHLmld2MDTFmD5ffDWUtDs2SDZbF64DdYGptI3WPO",
+	"0G6KG6BfxATTC7GqRKoSxuDxeqVo+xyB3zEdpIjNIP27cyT2iauQjb53O5Cdfr8Ry+hJGDiygxR7k4Oz",
+	"MZ6YrDTvlBq62ZnvxGkKMaSROGZsK/RnB8K8XoDLFaEaqibteQ03L79pOlErsQCgCY0on7XspMkAWn+n",
+	"MsyKY3urAm7h0MPvAws+91gbZJBQ23xp/InbTnlasxfb59dXNmlVFXNHhpkadhCJ/S4E1iaNYR5HHtZg",
+	"9cv6RV2XYd+cN756XjYuYFDbZ4clLG/QVraG2nZVTRk8p/XptPXzu52L8LW6Lhq8g+QWUWRsZPyzPNVv",
+	"hCzEuSmmQmnAlHSrWLo8AXGIK15CZD78m+O5ZK74Uy+xV+7S3YzXBUNBb0FHdftG7WI17b2Lo2tIGQBO",
+	"w0F7sh6yZ8OYPREnqP5rDrkbEbuMB5QygM+4Wu3MoDlXajGV2aTM9y9k5kJzOC+vGsUHBTbjiboa+ctn",
+	"RxOTj+wB1Hnd37N/OiB3OfrUyfY51NQzDhsyjCkPzy8eDqOa4IZoSb6HuBrS3zhJ4PhNw9pST+Dlf8xN",
+	"o533W9cw//hUXZ365p+a/OwA6bPzWqzNcpYC3A9YlYxMOla4qqwp+sNTqmbGYQYyabarfqFkVkx3pAml",
+	"COlWz7yhg5gst1wa6vflH1puCKf0cf2Uc1dNh/vZ2XbZ9/WTT2A4AdxRN7CvMQpQmLu6EelnVXApXx/B",
+	"y1vaLDYk42/GedkOX2al0Y1ALyttbsphz9UY8oaXOzS3qz3HZ8nfEESxMvOK9aO+MbWhl2sSLHmQns47",
+	"5IfTeCRLUaIpdZFBUBA6yykmkQtIi5hSRS74P+eTWsvM+fRwq8Sc7+q1HvvRp/ffNqbqPNN/T5hG2yE1",
+	"171aJeLaVtwvFLe+a4Ajewa+wFycnHwDECDUOtRoI3cWZ/MH3n9WlrBSMkla/BGFVKXJXQ0tIByJwNIl",
+	"MT3hvKLvxyP+OyoRxpgH5gvdQVO6t4TcQxBUPBM9xmCqFGPcbsSn/pO3wDVojZrOHnNzX6FFZVaR+7Xt",
+	"BSC0/2dSv7GdiuFMWqf6bknc/YH6WxzPK2qg9vQptvc2ar1JqYKU6y/Idghvcjq+hEvM/3veiiov4rhL",
+	"G4D7k3ahFbX85uw6hZOyk7NyMOWVOfkm/POk/ufnraixrc95gP43gqpceXzmJuCffHXCz77DOHf0zOwA",
+	"VrxK2w1pKzebs97xfN5018sIRERXJMyekBFTQVSye5gJ1//Fq443CG0AW1oGVmRpXgM+jUg2Ggm8p9tl",
+	"8MDnshhPb6dc8fCr6tXtiO/2Gi7dA7uD+9jNlA9eDcn8Bq2uttSlFc6No2mdK+3foDTeEGlHGI8c1OEC",
+	"41C3Am0C0gSv6mr4dralairfRmNq+eaa5bBbn7Z3Omi7HZTtF7Zc19T+Msv613Gsn3HW5o46SzlRn/dZ",
+	"pmOE/ljKmI7PCbizhAWLRJyZK5ZTQLiNfUZzg/uevm6W9m+CU2jyT6A0beZKryskzlNKreC+Ocn/fBmM",
+	"GxoQBAvQ/u1f/un/2sFa495osy5MCwXu1YA5Hw4xzuAUU/V25Ch2OZsXpoDSPyvrGC6gW7zVNfJWx21Q",
+	"z83VbstZt/shjgRjSzijsdvBpiP4XBaKDvytpP2t8tcduq60HlvsqDRN5Gqs0kuV3I483IqSJYHnZdNX",
+	"3kOzlUexbjgOpKMtZaImv1ZJScoWGzeyTG3djZq8noZWO+f/yGSO+FEWWmwy3TVYOm4RcGPdgKtjgriI",
+	"0DAeiIOESsYvyCxzCZfu99vAutdjJGhUjat8G2idxw4k2MWc6sJHZDPMTkR58/UENIu1UeeFiMd5WqRj",
+	"mY3QwxeDBuzOQ2cTRF9ti1wr4824SoD5s7//2eH97oFw37i6+xPGdyvqmEvXo/HOMVqVWd1mHG4RIrHc",
+	"vft1SLGQBVRM1ZIyfdxyosJ+NV3CGvfWAM/WwaDXT4d1K0EfQQU8mhis484wmJlp0PKfnXwhvjoQflR0",
+	"1CJxv3f/55/+/R/3znbv5fu1vTSd6kjs92/Xk00vZrJZPPC7/+//iJfG22jxvlRT0WJsZ4QJEsC1twTH",
+	"CL7aXrU9g48+x2+aM9P+/R85B1CDWYoz7zr13LkiAPHTyfpczPbVNB1PqUW+B5QdfQaVLVbFgqRF+7dy",
+	"56J1RGH1PG/E3HxuLtJGhDaC2b1nIb6bq+MEBkpnnXSmyY2WyRc+GGcnGcVBfN6InFwvErQzgDVHfJC7",
+	"JQxmWJkKFjIZWZVNRmWmeXOQBJyDIl+olSRMbMMKaKRLjVCCKYBfddVSWcL/SuHwTDrNwmmjyWGLKhbN",
+	"qD6hqrZNuO3NIC3BOqIAyZ/sAM8StroS91FLz4QeLtJLpdfApNQQMdfuGeoisYtdiyOqWF3fv5kvVuhb",
+	"ZHt2iDns7KDu2ZYWS7orT2jIHoXx2DfChYqQuozkhRpNzaIpG+VLL1owIUoMx41DyzvjNe8GDcIQvqtx",
+	"PBy8SUMCYM6JqfqEKh6pbQP0bHqhZdEM9e9uY30TPaJu+TG4HjiaVEhWMMHRzfWH2GTTKz+o2NfpS0nR",
+	"PnCpR5BM5J/usvtnvofjstH6TxSreqwT/853twzLC74amflWCYH+65f8/hqk6CCIL9yWm1Kc3ShqacSe",
+	"6EUhd1h/rJqvSi2VmDhFE2ukFb9FWiUdse1pM3V0I+y/a3b9WG9pVbwFpyWrw3YMMUR0n+epHqdzyREf",
+	"c2NRZAKnAMrpM5koDgBH3nG+LMMMI4z+cbHhhfMh+MJhOLmBaGCluZosLNz1xXhahpdjBMrhwUGnJ85U",
+	"IdLCk/tcrZYxgAoFzLmB5XDNm8IAYYVgorvn07tYz6s8fDvRNzS8fhetKZHS7z160GtgyDdHRm3FeMs4",
+	"GAatQmt0vtAkIksNea1dM+kiLMUK+vVQU7HXduyjz7nqVAhtjdtKMbeI3d0uWXynhm8dINbfinHzDazz",
+	"7xdBuxtf3J3Rg9KbGX3BUcZh4KJbVEq3dcZ9MOqToveuAcafPfzssLHK7K2khe1tdBvEiHWnC7zfYCOj",
+	"BUHaI68kEBEmBkBazlUI0OR8IVX6skYe3ySCULY3cmkqWuN9n1TmigQSLIHtEp8HQjKFuWf5U5mVogoc",
+	"akkKzD0/g/arl2cEk0/rsvdDmrzdox87PRG7ZuIBXYjNPdAjxRAqwGYYaR57dX3mZlEoIbW9UrkFWiq0",
+	"nPlYbCijL2J6tSINxQMStN2fXM9NlwPRSiUWkoshQ5E7Kwd3vnQYNo4Oh6C/XIFeYKUy0aZ6NxZvgcBN",
+	"sMgXxUIXKfAhpe9ekGsU4X6lwhvz8mYJrklQ2+jtfOEuf/USxOS3icVS/E6c98Vvxfn+zz9dH4m4glTH",
+	"v/NPPs8/Hurqd/Dfg59/uv75vxLS+WeHn37aPQBq/uUKXmwbbOz6XOUXf/mH//xC5pAZkhQRKeCYi6+S",
+	"ToR2Dsq51UO9ktQ+EPHhPKPhJeK3YMiFvMqks9fehz+v98adP513ogqy2lD/UUbiPBLjSCTfHYn4wRZN",
+	"/OkiEsFnkbj47mioJdgDQsupkAVCHkWC60YwhlHNujsWw0W/f1+JPkEjp3qSkXUoEueV37jeB+euQBQR",
+	"xWGxlCXp5bFIRJ4CLY2Gmp8pkQBxBEyhI4GxMXmqXFX2cxi4VheUbDxBykUNUMtDnaSTCebH4A3vROKi",
+	"Oi7w5c1UAUUrLsTvxL5bicNXz7GoxtxcKT5Y8uefrv90zusHC66u5yMLd47KuriX2vu49OpP7b/80z+f",
+	"//zTdQfwNNZ8NTKTiVUFfbyEI7imBbdty/53jQeRBG2C0HDXySJoMQSbxft7yz8dxJEPlUZ0CpodVNeY",
+	"Kalr0c7UfCvif/AdakUtf3EAyXwO9/cB/i82RnAzwQRXHvCMt5V8YHbP3VCCv1664eCzr4Ix4YOnZpG/",
+	"eu7/Si9V+dcrHij+8eR6fhYOdvXhSx7v26gVQL6sGgOkJfhognuJg/ozyDkmaVao3EYOUK0Mzg58NYS7",
+	"kqW24JJYYrLIiRfJC65D9s4Q7E3JPi/nCrWRJgnDiFw6D7qLNjnCEFUvOZHUA3IOQsNh8a/4f4xrcan7",
+	"B5/dIjD1f0T77/7Bw2YD8Ctk0ruCE90ikzVJLbhk1kQ9uF9vkxwLazCbF2sgUyaLLButNXtlZvxm3Zgy",
+	"Z39f+So32U34IhvNBdRyODbX5uqk/BiDJbwxEZJ29Rb2kbky812AT7CfG+fLra4f6e2sI5WtDS7KAevk",
+	"wUVp2Hje3I1Y0PgSh+cDylu9owefVjvqR9scFi/OgrBmCy/NIln9XnZZwM9R052lOrUFUZcty12YTB37",
+	"puGv07J5+POr4+OyB3y72kvFwHG4ybyBmb7fLxT/XOQLtctZ98vaeDLq8Z9lSsN7xlErA5xsc47iXOVC",
+	"aRB7vM8czy/kQDkJPEZfKqixu2FRh4GIPOMbr1cw3huw0crWt0lb05wZrYKYr56IMXaMkINAJsKQMf5z",
+	"UCsgjnkD+H6Y+AeSJnyEz1wGIIlgUHnb25Lasboucjk3iH6BUWJWFSQZqBQYO+S10XAyQ9UA3V/fx4Og",
+	"49Jlb/JGz/qRiJ0kDIl3spSLMQ1QODw2eM+McmMKMG64SesavKmvpO4i6CHiLpd6PEVnWFVdOBKxnJ2n",
+	"FwuzsNhyPPB1fkLEVIZur0C8YXNoOENvW1DkrnM01PFCc6TayMUA0mBLhaQe9ghf0Yb6OD2swoirWj7C",
+	"/qoydGdQmdVQp9ZDOfoaRW6zTe7Ogj8qpX0H6Z8cT5WNhtqa1dWlNUxrFfCCY9mKWsGpRCG6PEetqOWP",
+	"TPBv8OS7TYd/1nYZmqzsEhK/+vL6jv1S+R7KJ9uR8YD+wfenPIjy8TF0tPr4SXWqtWaev3zc9PCrysMv",
+	"y2UIHppTY4pnumEgbl1OaVnKX752C/SsXJ/aBI6DhaoNq/zpuwrpup208NcZ9rwp2LmBVdw6aP1uoGs3",
+	"1fCbqtXqfeBJ2La+Dlrbt0dhofdvhcVCn+4OvMLmzFuclFP8sikCZA0uTBNi6qgW3Yqf1haiPrmaG9fN",
+	"YGspgge+803cFCpZBa8j3wny8CqGy0opbOQdrPd7uD2Od3EhjfDkyjSz0nadDe9cmyOMgt7iSG9Z7ieI",
+	"t2/T0RFxVY6LO7cQL9fV/0mb85nTILNioz/IvRd8EwBRNoaFlhkKEC5kzguZal+AIJ6kKstU3lxeYKak",
+	"Hu2Y7uwCm5tCc+AdkOo9IkGAUi8JqC25uV5PrVruqpgNEs41CpSl5xTfbUw7ifgWuPMVIHTDYXey6Tuh",
+	"26VJA7Rdc9Vf4uMOzN6vZn0zgvuwehQ2kxXmnLuRlb+mHITNmQevcjWXLiVWzXcFYNBCZun3C1O4wzSX",
+	"udIFRXAs5hhMRfB94tJki5mKhJLjKf8BxHH2vERALUymckSs/vlfwGU3LiSB7jYAk3K/o9k7Jcy6VgqT",
+	"cUurH22sJYxze8dBUBu3HEJty4NlWZldMNpap80nw5xnatYA5Pj0RDw6fPBQzOkNQYHFdnWP1oXooy/8",
+	"CgPycuMgcJl9orxNtney5TVHc64pdPTUIMSazNJEpODR5PNmJhMKFxBA4ik8G8p6bs/LcKpP4eNGTqZL",
+	"1NlVYZRnJeaymDZOh19gmXNtA2D0+bsu6yTdZwlEuRgBW8zxxaSRU3zBg36/sS+7Bp8T+vni9etXgl7A",
+	"OksVHKsHlSLWh/3GYm1FWjSVNT6bmrwQltAxPa3g8wOtNA6VHqwajr4+feZcGksXZxA25tj5ItcDlNXe",
+	"KDVX+YDfGfAJiXutqk31ptRy/NXNMUAS3BBZXzk4gx+2vCCvOXBCpIU4z5V801zzA+1FKm/+vnbkB0KK",
+	"vz17+aV4RR+JVBeGUPpNsoxEvIfI+nvk39X4H8V/jYFa86N4qOFunpx9gyJuTG+k/OuAP5czxa+zs9cj",
+	"eJMh5aYUfprXTStbIqHvqBVcNiMnn3wj2r/pNMpFTcjWiB/ELxfLOeY36UCsc9BfhbguNYi8El5kxSST",
+	"xa7C//VtSppftyI38abl/GohM5Q9zlRxmyTEMErye9cWEhGq1oCVa46YGiPW2KQQqHeUgfQqv0zHAMrC",
+	"wVYN+cxkeMu2kIkWWeHnhCzDlbm4xbepHYGzbJGrW3wM3o8twe/rH79t2KhT19IupUZC7TMqTzAbRgtT",
+	"sZg68zhmWmNBrdJMLglVJizuGaDRF0onIi06NYU5x5Pu6ulUd/Q2Seh3mGjddBWogqmyuyJ4gHG6IeYJ",
+	"CEH3Kk/RvA0kEx9A9F0srqZpRgQhkYU8lxZXStKCny8xCskhW4k2NmI50k486N/nEoGnqsiX3WNQ3Oqx",
+	"rGXnrD9hxzvEdMBifMvfu79fYhMlwKZdJ7XIxGm3VrSnpnDzsh2RyYsuy/uIZJRYjEq4MKIwLqF2kl4s",
+	"cnmLKquMwldu5I2VMlZh8HZBwPMdbUa+o0C6NWcuKNSws+Mxz1OiaztUh9nRyEnxWUqPb49wM3FCUPWo",
+	"oFQyr0slJMqukZarBSkaRFyTN/5U2xYakH+/1vI2IL0khY5ltiZ7aaE1xGRSeboNY13/xnrza/XLlc7C",
+	"wVW3L/InpvkkZkpatFE3UbMgdjYkX+xOC6Opj4DSQVsQSRILg76/QqR2qB1cP0oGhE9aOkkpLMVVZSsx",
+	"KI5EDORuqrIkHmrHW0pJygH/R9xCJBZ6khaUnm1yYRdzlVuVcDK4HOqtuu25aTgw21hYiKTHHN4qsQ3W",
+	"huon8ORbUcuNfGuCgj2+qjTID0/DdvnZt7553MEa9dvtmqZ6tLAb4uiJWCOhhv3U5moNdIq8GFk1NjpZ",
+	"k7AwkTkdCHGupqmvOJaCjohJmA5FQtqCciurCdcL/UabqzWVSzZabUqU31XY3rQQF6og0z7OtL3QiLQH",
+	"Kx4B3yIUC1KdFpordHmeHVEZU9lZQ7twbxqiEhm2DFhft+ukgS6y7EWesdC2X9HIGT5yW1xp13fktrj5",
+	"+pNT/xsH6rCjIkAp/pLpN2ynLuxAXP/v/1MfVhItp3AD0+D23rMIANAJse/h36HhUPzrT3whh1rOzEIX",
+	"8CTJl2KSSw5lpipiBdUPLpkISL7QfiRychFHDssjWwGmG+ryG3ipBsBgo4qk7OViVy/v2RkdVF+7zpGp",
+	"oXbwl85t5LsBRd9y7aYaBNSKZiXH41wlaYG/RzBYsI9imQGdYHba2GAIa24h8jOYI6dIEGm2HsccFI7G",
+	"AnfjYl3luNu5awkXYbS2+ATtHWLNT3ze/nZgu3Xcji2+8s6ShkhP6PzWMs7a8E8zD4XLf/0vraj1rz9t",
+	"iz2NY3qxyIp0ni1bET94nF6mCUUsrK/p4a7xruYCjp+j772H18y3Eou8AWB7D3WD4lxv1V+ZnbY6937j",
+	"bV4u8dK2eXuRNW92oa6bt2PtPl33t+zzuj/azlF/3W+Vb5fnun4Xm26eXzS/725deGo89dUtacIdCQ7D",
+	"Dc7+MLZkNRSyjGn39RfanLDnI+jIeUkmirHJcxrKGu96vUaK/38BV+2u/rayJaehp65e9Kr07TpE1KbC",
+	"EjtotmWk5g6hPjjIRVY8uVS3qlo4nmLcAuLv0dnAlEOUPamkF2dRXFFR2+fPXpxx+l5hhBwXUGAAK84y",
+	"2LMUJBqKscyygSi85OCdgc6NGwl0/1IijJMOygq1vooOf+4trB7igTJ+wfgE/HSo6UXU/aguAzXDk2oj",
+	"dhTB/NCsO0elBoBTjYGZJyImKTLmNlJkqrq4Z3si/v0TSsKkZu3eD/SPUZq8jcu4TIxehaRSiRnJKE1Y",
+	"FKgbOfIdFwnbpZ2xZJXgZhKOR+wE39+lkGMjwtjONop1RZlerwb1rC/MtGr851wzJ6yuFmraMrJsTRjO",
+	"6/AA4juk/mgRU3gCrWy8C5VYZMXasJu7ia9ZOSQr4N+UOcKeMjWi67S9ClyeJt9Q8BANFCeuSYqlv0wh",
+	"oso2my5eT5lUsY7PRmoEf+ehxtvXe6+YSRrqvd9QlikgJzdvZqWnlqN4N38XanJeEuL75E9rqotPD0Nu",
+	"+Kjff7j/6NHBg8OHh/1Hj/ZvikDasWQdHujRmtAvq77frBqj00EBBmmqYdOsssQySKFBCly5jO88vdUA",
+	"q11I2HayGkwbCbLHLCeCWz8pK4c8LMXldzdc5KC23sbIzVo0VrUWXhBctSlMq04jHL1bI+pVeUXjdUXH",
+	"BaOzScICYUJJOz0Qcb7QPbq9hKu50HgehprWwHYiV9rB9mSSxKLNfwmZJGQpkFzSIaZSxVyCFDI86EFo",
+	"Joz9ax6RJkanjscl6EH3UBkdxqOHugFWwb2hB1ULJrqXU6ek1z05fqJ+g3FGbmd7vhjq6qj9Qz/oVtRa",
+	"HfG2JVNhK04X+sSNBh8Qp7LHSeKelIVU4a9vquPBZ0+C4VAjbkzf+iH5w/JUqeQDpGThwdpVbyW5uoHX",
+	"TqUdzczNfmNXI+pt1IJ049F4y+TlxiRlFF6RuZmSYvZuDLvgmVdHEEzhZu3NCR1NyV5oOJ2gndTkKnHA",
+	"0nSdB0y/69HGEee/a0M4LzFLZ/BvMTaLjGrPnitGEoZbrE0xcnlX5Hpoo6xNfhGGgUoq5dmORFwjXt7I",
+	"vwRMgDi1I7MobJqo0VWqE3NFjfqyU94SiGoR+2sxI40/o3xxX7+MGjkKVA+4/85J0CGKAnFeeqxG7nE8",
+	"1O2ydkbqiogI9yJ9j9XbynaPhFWqbKzuH/6ryWTCxnHf8Z/VLW5hiEZ1h1pRy016tLP3BVaukgtFjyp5",
+	"UHzzq4sUfEr5T5UHX/kHQd4TP6jlPHGHtXwnetqU6xQMMMxzCrpfffylOeEFdX8XX1VXlZ4/O3tJS/ut",
+	"W1l6fsbrW/M+VQ15uyZsJPUc6/1Pb0yxxuCi2mdhgOI6Zyp05r5eT9JO1ZgTst8z6ylNlZu+CFXCBh8P",
+	"Pr6RVDuQvh29OwzClKhxSmB8c18MeKzq7lh4tQnIfAtYXv44v2cJaqoZhncXTAge8c3sHDp+7N7e4Cv8",
+	"MoBtb0afXYXvqG2WH1Qgxt9QQrc2vjDFn3zqvgL+1rQOQaj8x/T3KTfxtnxwm0TIu1j1d63DGlSFbYB2",
+	"JXgiV1EttSKGOIB4FYXbT6VxVxaZ+iY1t4veYbVsjV3IFzu6NNmlc5ymM7Wj3dip36s+FZxDQ2ZYZpUX",
+	"Lve7B1ZcyVyn+iIiPGv3EzVATszmOADnJbkhD7bITQbruEuVSO+FwEn476JgUZu3S+9caRQUS2lZeO3d",
+	"kXV2J3xyhklNm4OibuWVvRnCm2A4ryoz325ydHC316MWmoSRhkPqOlyT6Is4f/BNZbxuuXQI6/f3RGTH",
+	"9nJb8rjQT7F3iFJrReXfJ2ffIHnc3vJV+q92SwQrLa67fjPaHj3brIWVug2f2z2V/XQR5LA3BGeS0ckh",
+	"vtq11t0qMqz1JwI2NKnXa6B45O1jJisQtltNy5eZvAlYBc1y3m5W377K4alb5/zW+YvSCG4dDr/cH39P",
+	"b5IYnbnnQ8jBJelo8ETCbwiL4+tFRu9OYba9xU27tv0CYu8foNjfDtb424AW7ApXsLkylmst2lQf/HRx",
+	"22KJt+HLH5JSh4R301ce9+9diKsHbK+HDqxQOtbst2mZX/Vtb0OtTzAviGWc9WT7nvU/WqrnNJNgS8NY",
+	"SKzKAE5290rXf9/piSeQaOQxlqVv+54tQ/EwztNXcRax7wsMWHBCYmeXdF+TObL2LC1I4MBUapVQpCaY",
+	"nBiVCxHQl0IWAHhUnkcGPPafceQxfMFZ1PihSigOEMeIUEcen1wsdKasXS1LkhZlFRI09211TGqH2R+R",
+	"B/0tsNhq3HGVcBOKWUC4cfYIzrI1CXfstOEcP9gN7Maz2g2MtZzQWpLkUVg+iGVoB7mjYiNqUPt28Nmu",
+	"6FzsT9wSwaWU7O4OMWh9oMf+OlF1i+iMNT7pChCDX/0t2rtZ4GuqDxnMbuNyvmOB//dbcDPJlyMXl726",
+	"SY/zJdDqQuVB8HbhYqIFFi1I8mWX8JEFFnO7TWmC/bVgCxRT/u6gDdSOj8jceJngnVvggKR2dMfF2l+v",
+	"dVzRN8AwMU+X3WM+WB9NTvBr7EcUB+a1enUlVKIJ2rHWmbcehTXfbwN44kMdKCWgwfGIzyFQ1GKMvUMh",
+	"SbWIK5/iHsYdTEemWp8Bhkkc7nZ8hKVeoDVN0JA7nM2Vc7Q6iO0O0ruUm12R2m7hCKj6IG1zVCtJYTTF",
+	"ezbwdJ7ncvxGIVbl0pXlqOZjWdF+dvLN3snJN6VDlWWqR/2//MN/3t/vi99EkB2x54TVMnG8c0SHUQr4",
+	"HqvDRE5so9EImzqPBaYX+dIgKAkGvtgSHJxM0pBVwU3gL9oMtZkrsIxW0tgwx6yNo4hhEzNVqLiDOR6Z",
+	"wa6MVlGlp8KYnjjGIeNQh3q/L3y0ik6E9N/COzJnoRDqUo7NbGa0mCM5HZN59smrY3HQ7/c+66JxjG6l",
+	"7ZAMKxFYYjwNgTyB8vLF52DE0m/cFJLq5tVgNDLl2RBXKYbZQdkkRCNfaJiGStwpCPzWaWHdjJuNyeWJ",
+	"21oWeuY+aZAaD3bESPQzroyk6Y5VJLBdjc18wJyLO0hRKv0WSjvF4/3YpHeKJb4BZ++4EVOsmsF5IS8V",
+	"5oJicC0qdzHGj+0Ojncb0Pgw1ng7FkvScSN3dQWG6nHEY6wvkJtZ7w7Dlf3t/R33+z7CkwNkQBegDCHw",
+	"ZVwORKw0RN44FMEyOGgHBMEbwpiTGyKp0wTDqEnBx/yFiVJOLEnvOEzUyTi+ztmNZOnsBIj3+wzIflfE",
+	"ws0zrmZF/7rinO9CYbvzyOatLGpOMOOgk3cOQK6E3t/g6QvzeeBCUy4/7K7LwcZWtvcBOnG22uHXJ1+/",
+	"QGQgZwBkznLPNlTRjyjRXsSVnyAMt7ouMREkDz6O4lGqb456vF3AdNVSFGrv24FU7gJ/uS6uejU6vHYl",
+	"G3Z/67qnofzy12jh2nQbG4GvdzJqUe/2dj6JXc33z2WhbrDf3w3K99nYEOBeEHNuByV6EC7NAA64d3sN",
+	"fNQ51g/ZtjAedHS60NYhC9ED6uCU2sdH6HmyPpAcnx1TRzDeKq3cOaTDCQrzTGJdAiJ45HbgphsgyFBt",
+	"uj0KTon514DnR9pzc3mhNdnGzSExvqmNGHr1S4Pq5PuYWbo5Y2x1JaS164ol3bBKbCxwCH+75r0jFQhW",
+	"j/NxeEC19ndbXNLdN+Q3MTuswNLwV/gD68tHol+NYFhdBW2K3cpGRS02Yuw4PP5qx+HdtIVrBUovSDZD",
+	"7vg4byc9YhjzljSJb3wVc2clxDmkOmUPqwiW/gCtJGq5hS5PhNsvfwGjkso00un0YiY/lzZdo6z9+z+6",
+	"vXp28oX46qB9etBh/BLx/OVj8Ttxv3f/55/+/R/3zlBqev7yKyip2KdHUE0RM+hHNqEqO+LscRmYW6Ja",
+	"ajNDgBaECGxjPbliaqwaajSGJs4VykCBkEdNgIMj9PpR83bvL//0v1y5zHJsHNrGjA16exWGMHKDqhRR",
+	"FOlsjikXhDjYVgA8MCzxxGyaLGQGnzF6EH0J9WtE7H4u5xx8EA11uQrlMM0EJVQeAdTWWRSGE0OcIXIg",
+	"yrUMQKvyhUYgmHgGqRIOJMCiGj0zuWIIgxI0QGWwrivrV03mgP7h7HCHWNCt8j5xcTfR7avY8mk7pvbL",
+	"B59DT2dJ5dlz7BKqrWa1X0656zNKFPC5XrvXdCiULiC8wPHh9aXmcxQN7mGZePSp89fCFmmW4R5gcOVU",
+	"2jXF2113dioPHny62tvZF8fdgwefivZUXZfYsVIbjYCwiG5nJsFgMIw0vdCNKVnVSPU1fHQbbXR9ScGZ",
+	"1OlE2WKNre5VnuqCzSQRYtyiC+jr1yfksDcwK1D40LhCNvXpYiY1YlUBORRUqHlqruy6aFVutoq36ATJ",
+	"sPQy6k7peZqlxXLXqssvqJNSeqz90FSU2X9T7RjTy3Fd1hd43GgHgY1fC+/tcAXSRLTLkrv0EQa2rsMS",
+	"w1abUbIJY90ftQGnrcZgL8T9IZMiLgBkzdXSWVmTbK6EQU02GhO+fn2yvXnAtzPCU9W8OFiTlfDVC+eI",
+	"zOT5PUth8H9GNwpg0t+/f/9R6a2B5/esoBq2Dg+MMUeQQhutqIVUU1Yx+T61KShoAJ5//fpkwBB18Enl",
+	"5vjS6UilLW5RWCQVyqP+cPi2S/84KP/x2v1jsPKP9n/88Y+/7X638rzTWFAVRj+CeTaeOZfUK7NNFjr3",
+	"lt7JWF5+db68WSVJk1b1sIYXIvJlGysXrCQR4XFbPTLhKqzQ6miFV9Sp3xrpimjBLYqa+pzqHQwZ7pMb",
+	"Q0aCxjeO+91zdd4xp8iPxGX0lOlFKz8FmUa7FUoNWMgK4DIm8CMdcySuTJTmBLXCqmxy5CMZmNLTa1IL",
+	"Tw6hFelNo20CXLYLXHVyZbw/BsYbuZaPVX9vYmf1Fla52pblZqNN/K5aELepMi0v2Bo2lTouJdosNztu",
+	"1emFnIkE82BrJkF4KBe2TpSrJEJaHO135Do4X8Lucjlc4hZ8kFaOAmVn8xXIw8xEbHe2IMRILc6VkNpQ",
+	"8W/kCCVkbKlLgGWL2kit8Pi3dBjJSbWkyYg2+u8i52erWeUpNKdTmZAIKvlunhNY041IUkqbnxtbeHUE",
+	"NA/5RlWXODzfLvk6xJDgwd3yYJ/RqXBJyGt+DkEi1rxy6oaxriSwP+Yl3WgkoYHv7q6KG24LgBX4oVBd",
+	"+4CxiKV3g3pedU9sjieqhuV+gJDElUW9IbcwePn/IBF1kce5QMJ0lVoKsvNH64MWIrurA/aCQ+53TgLZ",
+	"Jc+SZNP1mZabb3uy7geq6LcbuO1tAlnU9VwivMZCj1VeyFQXyy27o3wDu1N3zoS/Tdi+274/wDcb6Vxm",
+	"mmFS52W5ul1qn1ZK3DXYvl0Oxk4z9x+BkXNd+AOCfNS3onoMF8TwO3v4n9JkCp+QoV15tMtg/lvG9NgF",
+	"xg01h3T5gntbHpC7hxlmCA72sqy42R38cONK0jEJplg5wdXDsr3fu+msVsxUXEfBpzdRKYbxm5E1pXuf",
+	"i7EjDi6e8i0rrnCbp66XVuSfnUEnwd/Pqd2GMd9Cca3kau2Ui+M6vVHKKLvYZt1vme5X0ubtuHrI6lbY",
+	"+qnjw5xn5W48xAC7f5dpYAWnXrn0rXu2F7KEXaSbFV5x2+jydcygwQZZUpt7VrjvRPCd+Joxfmvju0X9",
+	"hV+M0dzBocDFKq83lxdHtc4fhdSK9goJEFB5qdML2FtVb47eG7sL453fF/Pb/niHHOnGFahwqJtObaV+",
+	"rIzQaqxkAjLe18hC39zirDqet2VQMLz9niiJZ7Ib14HCf4/KAntcgLHey+2TVjay8OBqN5H514yMX0Ob",
+	"yZUShbougrqvR1wPo8hNJsZTmctxoXIgTWM1L0QhzyORpZqDeiVCied5Ki+UyFWxyDWXSqlapqo2rdBe",
+	"/6fh8Lrf78L/fgb/8zn8zwn8zxN4uP90OLx++PS73zaa4l+D+nBLgIRbyPi3AR1ZEysQvBAoQqml2jai",
+	"MB40gy2jjN9X4nJtH2Ky1nVmx2a+i8kcXm/qAMfUPE+rxrkqeuJsaq60wAgBUEGPRFqIsdSMIokl6zDX",
+	"YsvAUeoxcuUyeCIVabPxGsBntxRxII9mhC783GRr6AEG46W2QMgA4udZOoapTk06Vli6yVos1EMbDuk3",
+	"YDDEzLYy7I/uVRjpJ9rOsHB4cODh/NOi0xPPfOkvtHTSZyIlOyPc0Vyx2901cb6k4BCzyLtqqSwVvV3N",
+	"areqsIImDmb7EfWyLkNopxOfMsIcVh+EgeLs+bAngnKk2uU34jzFqrqdnvBEHV/mZlBCChawYAM3HDDc",
+	"FSD5wQ0SqfXLcdi/zx2TNbns9Z5F2w8O6bB/uP4ttuQS2q94ruSlKplA7fKKNg4o4k2LnJl6+wSNdYgB",
+	"9w82haQ2wwc44nAHItq3UwOLgLUoMPlsYVVJ3I4wNEG71BDKrmF7nFwkaSGKXKYZslxzpZvqK387NbOy",
+	"QQFYpfoCDtJAxOQC4ELIaH92lZDBH1Vu1mqp5N5QPyb3B3kNyncrVip3FujUxeVZi4eaxiMzdIqrjKdN",
+	"Q2KsO3fq7IKyYIZ6hU9Gd0ehyzNxuOuRaC5IxANpJKq50ndpuj+XVmVclXEj9iD0+7l7+ZZYbFXMmZWx",
+	"UPTeljB6z+nlMA60wetWGAF10eHoz1IidQmFcqZWFDAnAFQPAiyFW5DI0faymguZsHYTB3xN8K0W+JV/",
+	"21U+3/44UgPwTdM4inyhx05yq/GLfKFKKzwBCwtM1p1RlUipxX7U7/fdigCBBj0P3zdZomzBLyB8Daxx",
+	"M9u6dPCRu8D6hKiTNwJOVIBOvKGt3AS/qsHJ9wevMsBwyYLY1U0JE9U78g4Ime+EdjmDxd4xgWpNkLJt",
+	"OC1nnFrufDKJukxxyURbi7/80z+L/XWVsf3V2jXV1apMrUHZgBKbGJbNTftLqzBx3Fi1hZCLK4azhZUI",
+	"gTXDvtfu+KvwirNvHzrLDIYBrcuc9YdSSKZElD5uQ3+0awQ2JQedsBbdGrXykf1+Iam0b2a2jXetDvyM",
+	"e6k+fRb0Wf0lCHJd+enMj6b6w3NDEbEBmfoAKGe7VldSQOObyWQl4naRuUPmv6A6BKmrnNSeeHRZV7Q3",
+	"pJ+zlLAY8GXbWSfmj0L+vPrC7aDt1ptY/Jl0BaCa09ipvKdWwDu5pPAkLSK44/6g7pzQviviXp2dNOF3",
+	"4C4R+rF/18EMB5u1tS5Qg/DdDKMQZFZWEimdv8cXTC/RAcvjV938ylybCBGe3/BWLBZpshqsKbuT4+7T",
+	"73747G03/PNwlz/3D942moe+bsyDPRaYCYs5BGBEi4TqXfREPLvYew4Jrgv+7x/n89l3cc2cxSrWGmPW",
+	"/6n7f/7uh/3o/prxfCPzVOqxgoL+2Y55c99iBNz+nv3TQRxx4T5qTUwWehxmCvnwh7PHAwH2QRHPzZXK",
+	"obaObV93ALGg//NPM3ndvo7E9WiW6s6fxvukQ+Of2IydySyrJIJQsY+hrkQRHHEXcCpkDtkRos1UBawR",
+	"YI7f2+/1e/1O2L34rRjv//zTdSO+ybZFOcf7W764JuGtdj1cDSio4DnebzzU35QUoRb9iPjlRJWkXgZg",
+	"gQRtwzSpEgzZUEglZLRzaeEqTqqJbptYKI/uFX3Ifz3F72nsZSWgD8Do1kOa3CY4613BRbYqZLg+k7Is",
+	"5D+aN+3/bx5jKlf/55/aEzT1gNzJmVqdPf7HrvwHW2pC8QyWj2ynUMJqE2MUuTFFAB5PBGLX8Wy/ktt4",
+	"DcPzuEVoCihEzWsPjPXH3zz+kUyVpX3T5Xf4kqSkUW8ZwbEpF3bbbNemRbwzmIwSrX9FKuTqqrhmJTwX",
+	"Fim3DISzlZk9EBiYON4cSOaO7WrObvUKhVsaJPryHQyKClRFlS3jScLD9eEQtNmS60tuNiqHM+AP/KbD",
+	"9qiFG58rrLsHDJSi4RpcpYFSfFmj7NveupVNrxWvq0/nBmPDyoVe5ZKpTosU0gIAZY7qbY2NLlK9SPVF",
+	"LNon8DR084cjCpkjN0Qnkb/fnkv6Jp/5ZioHJmiyNq9bxPjc5iCF097e/lLd2xuUgWoXO2ztnSCCr8HC",
+	"8TacKwl0W9rFbsUvNuOhfcmZ05XXIkF+ANH34cElMA4oCbeCQL2hdvk788cPGke8DdF3oYTBNjcdpG8x",
+	"aftE6iRNGFNgl0OUXKZWrUnnxHkolw4+nhpj18EZkhluYzOcPS/AQ9jcyExec4Y3ZaJD+lu+xoqRyfxC",
+	"2ULgK6VbqZAZp7FjXiS2JgiScaETtOykVozdaoUSHoMQalMEqsNOBlZTNAoPSyHLHrEP+yadz0l5ITYt",
+	"gK0fCTWbF8sw0L0xA2k2kucQ+b/a17/9rz/+5vTJj245QIbtjmU2XmBVvzLHaEWwbRrdrtP3+AU3XYtv",
+	"/Yv1a1E2UZnn2pPhz13kDzJvw/qb0phq91xJW3TJyGr5AEH5+/296z/1ew9i8Zd/+H/CX8s/HcT8cyUP",
+	"ArOXhhqNAiRj1CHA0ETIVoT2cTZTaSKFKoTMepH4295Qn0xzM5OFuch74nPx8OGhaB/0+wcdcbD/oNNz",
+	"hgo3Nuhwfw+U/5//K0Vay6FetV8ExolrMEjQwRZynBtr6XZYURiRmYs2/jXUZ487HqQTHlem0Ym4KCvM",
+	"l76H3OQrLc4eH3GCsRzq8jyZiSMf6EzCE0dZ4d4GwndUhoESUNwg9qdhZHCfbK8OMsGrb3uuE6ZRhLoR",
+	"nGqXTO0tMHYxg7HJc4x1VsLFZQuELXMVHYZ67RUScmbQx2gsZl4TuJs2FZIDvjWA3JBaTGU2aSJTPfEE",
+	"l4N0SwJ7wRCR8lJakWq/HKPycRwJxCqpJ9dM0mtM+rAlpAhAoeDhHJnJaKakjkUbNoBMTGIG5jNLcZ0D",
+	"8Y3M20s4Nv/+jz//159/+vH/+9OPf2of/Nt/60Ti3/4bLQu6LGA6maZzI+DYGC0yDa8jOWPKQpInrCmV",
+	"sy73LxJpoXJcVvhJSOGATESugFMEJXLdwvzbfyPU36m5cgRb2SKdYSupFrE2miYFKZdPTS5Wp8lXaajd",
+	"XcKbXI4UDnda0LF2R/zscRWhRFOeNtMH+hf/fYD/XfrnS/6bnlv8LwOcVLZkS2HbU7EvaQj+72f68uz7",
+	"vPi72rOVvw8aPvoPtWcrf698VHnAeCr+71cwr5eTFzirkPK+nHv5eyeEs7LesGtJME2ImJw4jXySZlkT",
+	"hjCpxhYwXLZIZHeoRG+jVpXmNPlQ657G6gdRpeuNfIlX5zZQ5puWCAK1JqnKkjKUtgzM5XV7rwtWi5FV",
+	"CIbkaHczO9BKJRS85hhfYTA/uZm5tKV20WtE/dxX2hT8JWQhX0Bh7aHGl2kUVXgiEQezHghqm9YK5Sl4",
+	"GYkBVe7pCQ5zEvcHQgIP5KSnK1M2CYzNaCUSdZErGDN8q1QChX9gAx49EL8RWGRa2LnUFqZAoVzIn2C3",
+	"HvY7Prqp1IYCG8ZB1HQoVw+aR9K4nca5G67B+8nI3/jlzUnT3PLqNcQQhPEiT4vlGcyEZnyuZK7y40Ux",
+	"XT3HMTw2efpnlIwG4nN8l3TfMQanuXA4gVFkdlCJcYtEzNYgBKIEV1JcCVCFNzCuMabS58ilqMpWaiB4",
+	"Lr7uutl2KZqMYbRI4QLdCodUahHTopi33r5Fr/PErE4J+4dYKpUTGLsNY/dg8Mjz5bnJ2RUTGJa8aBSB",
+	"mGmHWlZ+Xql3F5Ejh4o8scBZqS0vx2M1L6QeK5Css3S8JLBuq2CVnD4ZkbCNTUVinpnCRowqHqJ9W7x5",
+	"C/1GmyvgGl8duxrQ0KTUlYjJoR7qTz55wuhFsEmuir4sSMrtffKJOPbjEymI+7P5oggQ7kkGNXqSXoDN",
+	"RYxh2/NUOiBgmXt0NSvgWmqiHvPFeZbaqUrExSJNJMZ2Y1vlutPiwNwKtrgQwvEFSKkc8AtPWCA8e/kK",
+	"qdhQz3M1VonCNp3BFEitWwsCYeCS54mLt+SCXmxRpWIYQ00bypW/eJVLHSdXcyVdYDIIZs4aFuPq/s3f",
+	"iBOjL5XGZ0PdJXwxYlOcHZ4rYbV8o0Zj7PV16p56kKR2TArqQHgjVgwEXgiZXeGG5WlReAgkEjPVtRwX",
+	"2VLY9NpX7ZGZSNILPLVCtOOD/sGn3f79bv/gdf+zQb8/6Pd7ZHn6j3FnIF4ZW1zk6uyr5+6WzFLQqBCU",
+	"yUbCGmiG+Bq+kDBAky0RmSaggHNgdmJRVfcjk8gE0qxQeQ9aOqbPMXkBorspIDt+zVDR/zGGBjPUPccI",
+	"7uIXyHLlige9TztHuC4iU3Lu8aPig/uDB48Gn/bjTpA8wGPGU+SDugcYJ6/lDCucCL5+sF2pxkjwZBmJ",
+	"w35fxN8vVL4cwCbG9Bs+KONOerDdpUnNEvwJLdMUeWYbSI0Lzowo0hfqfeRKgD9MEL23PXFqKEQf7u98",
+	"rnTSRTXTgd5C7Aodc6AcsCMYguyHr1RCrZI1gxxdzEKtiNMk3oPCITEFv8MniSzkObkVzNxiKTwhDv70",
+	"4L7oin3Yed72cZYqXUTib+WlPEMKK1JNWJIRb3kxVTO35bgkUFwOVg2JZJooOUCQE4SCkbzpqRUxSgex",
+	"rwzD8GplAQ0YErxXOnbcy9YARQDRMLQGc6NlPT/XtOZjDHWHpA+u97QSC+FFFZChCA4u0BP8qiOmuCvl",
+	"kGQR41S/xPWm2zxJNczs2ZMnT7oPHxwKMjXZHlEEPpVjmedL8aX8EuHcNX6z5BNNsVi4RYlRZMFT16nF",
+	"UVOwAP5YiQ5w5DoCkVJUTWVU68VFBOfGFB0cPZi6YmcBkXgfU60ynBFLVILkCXdrBDMcuilWtOMmcWsg",
+	"UNyKO3jbTz3WBjcFi8SFZiSI91mGBw0tCWTLgPUbEzIYxkpgb+6UI7vMYbQOXAhpcmLGxNb9mpEscK6O",
+	"+PRaYadmQQ1Rukt6oU2u3GQQ6icx+C3MMuJaRJksVC64rIcVMkn4C9p6JO5mEkgWNnIygY2YZ9nIWaeQ",
+	"47vaQWBOESItacdA7IvCiE8PxfHZybNnIlNFoXIbMTknAtkDUWoE/zOA/+nGEU1J5qgmsfGBPoXzhd+W",
+	"JT9KUgU2ha91ipD/0DJn9UFrQWKfzBVvf+J4HTi57FAfiyy1BZ9GqcVFbq78SaOElnb8+yevsRooUT8Y",
+	"sHvCHDvuYPVM3FekvnN5ASsnYYe0oIqBywEsdk6ncsCKTSza8K6w6Z/VEQmUOCD0kVb0QS4chupGB68Z",
+	"LOR4kVuTMzLsHAiCWVjsHsRRra6LEb9SSbYjVpFbJJbwdicKTHKYAoLMzrpUFnwZ3zyiWdCN4GySQs1s",
+	"VO2u3Kwv1XVxQg87NOiptCMwxMXI2917X0j7Ah52euIPSs3dSvnzwHP9XaWXq2ma4QksGxWYY7BQUPAK",
+	"1xK/llpg2kEcbGSHriB+HrQ6QFs82Edx/bmI14U6cqS0HVf2nkUbPMF8pdFIZmGhjZibLCM5EvrAG3fs",
+	"fk6tMHP5PQSuloHJ8St5odyKHeHpKaZ8vNKxchhbRMHtQmE9MPwXadyUu8UbiHXADvt9PPd46OlY+xCS",
+	"NHc1YduSEepRa6+VVoPT7KJN6uXUUF4vhfUoUBpsByMygG1mKvI3C+8HDumrqiQCjZUqVUgJxxnc4uAm",
+	"076CfONEIEqoY2lnJQfKW8qJZnpKAEqj0gXPhqgb6m5DTfoG7HYscrMoFFtBdlA0jzkrCjOIFRoehtpB",
+	"MVM/AxjIj/SH+BG38EcSLqz4kUWTH4f6x263W/k/+CjUX8WPlQTEHwXJbET8mWBHVYz10njuSuJ1oBWq",
+	"VVCSfsF9hdqx+FE8f/bijISznE/CjxX9rq0NyTYkBXX8kJwYybphcHZsFLYQ8bDLM1hC3uFVjELcRQ1L",
+	"N1YBw1ot/0wfIB4o4gmzqEbzqyr74kdQSW0hJxPcBnhoCRyPoDKjUsqqrSti6wWyi91m5qI9V5xeyUq1",
+	"zMdTsI/dvAq3nTFZM8SP1axeGC4Kzbh7MNiFvaEL1AdI9cQU+0oL0NlQY8HG3GSKj7RT3eW4gGsxEE6g",
+	"VXkpj8OyeYgiPsNDnRbi7xfJhUJDKp7CygdRJTQuWGPfEi9CWgw1LHJ6iU3pim3Ft+guAacboxG0J17R",
+	"PNukkctsqBNZSOJwbjk4LQsorVtq0IZKquBSZsOLO9QM0O+zvdKcLD1lxrRob0rV7fT8epekNEPaj8uI",
+	"VIdkHhgV7gKHhajrQmk40UPdYMwarCR1f/IJSLdGq08+YV/aDD2OyYwc9m7eKB/BEFTiM8bJ+5gTTS64",
+	"Cp31kjS87cw4mSoU1iof6pdzpY9fPRPONugg7Vwyq2R6Xc4cFIXSbDgQf/wuHup2sBKob5qCLSSo9Kpc",
+	"DZrMeQ6vGUMZUlvAUh+7tJJIzGQG9g+4kk7PQDfzpYFSmj4r+7C/f0RqUpoEyd1mAefRLRP2SG/f74l4",
+	"b6pkVkz/DOLnHpyqJf1zpoo8HVu2POyZudJynvaWcpbFQ42mJG1cVnbsVg1XoeNY4BN0sTp+hw5X3EWN",
+	"hp1Hhw8einluzjM1A31pTp6E1Og9fvrbv7dYOItEuaGOX9Fz5/FLNU01BT9KJGLswcZsViIz6mSiMPud",
+	"NBOUlSUpnGDIoKdwkWBEnz7q79NvmNKEx59xuMnqAdkOKNb5Cv5272CvWudLtONha9jyW4oiCn7fOaLe",
+	"T86+EWOVZXh/97JUK7vHYgX+R/FfYyje61g+yMExNrjfBbtEIubTpUXAfmgBJXUY2lTJROEy4+P9jsvR",
+	"4I4e7jkhO+bhlBIijIe6dingq+KOa46kIVI2IhHPZTEdpAkpXDENYvAsUbO5KZQeL7t/UEtUJygoh3Xz",
+	"WWqpejF5dMKlx4bIfppaFy+Tky5nWXLf46P2wl0PYZe6kNeRuMrRZ7+cc4IWKwNB3hBczsN+/4gOjwM9",
+	"AFdxlnW5tXNQ1nIl31ghCeiB/fpOZG47ZN5ChX55J14ONdy5iGAM6NrSGxG0p1DaTMs1Em/UEu0PhwcH",
+	"QMsf9PtkjQaCPdRDX7GRrtKw5flOzErNKE0YBJiCYC9gIIUJrQOZgSP8JUtQqTMllTYmbCgwBxLRdxZy",
+	"Mlg4qTP+uy6bQ7rPIHlFinD5gJihauiCytHYgCT7DeaUMZk4lQUHXFtmL8wM0Dx6vsCKu2bixmZLzGXI",
+	"/IdxoitYyEI86IOVh4yeRyXCBcZukMHQUb+a1HmhCiseoPnVIqRIp+dmLbUF2aEwwfKwJSGgtJGwi/FY",
+	"Uc1u3J+ItW0qxeKAEL5fmEI6tsiXlc0srgLOk9dPRZLLSTHU+J9uqopJF1w6cp52c1koXKwufW27/U9F",
+	"m8KjynAMls5TfQF6bAxL/JwMA0zxOEy6mCpLcCZ4I5gHWW8YukoTlS1R3OgMwoa63BwyPNojKEKW/hl0",
+	"/uC1UzWTqaYQZSSFQ82LaNFLHZESCmdlbBa6UEn9e6ugG9pTKxa6SDMO2aGTkVq2sYM7hk0B5fev0J+E",
+	"VJnwLeAp/lMdXf2OnnHbTqHrDfUryT4qfB3/xccArydXbYhPVZEvu1grOEY5gqIUE39T7FA7FZNWmveM",
+	"Lqk7Mf5tZ2QjiYFmSd9zUrZ0pK9y8TpIqchyiqKSzDJvcumJY7/kVfiDNBAdoFdef1xBvA9YDku8dsuA",
+	"N3eucmDaMO6BOFfTVCdCCw4DsELyyUH3BUHRaL5VaeEuPFkGgeZfKM2BQWBqczeOrP4CImJKUlOLkOFM",
+	"Ps2IuNgT2YcleCR1YDsUbSctG7hA0NMFV8xnsabL4zB5Bwiv/wtDugLDKbaTFmwuFTM553TCbOElXxb6",
+	"0sDtASPidPBBGbVhw6jD//TPInZxPcBP9/euy6fuCcQ5/OU//fNQ48MDerpcbeE/8C/lU/fkTwfBswN0",
+	"RXP8hP/+ID7y8VOH84x/eWoW+SvM7XxQPksv1avn8VFpHaUc3Xi/e2D5HUiu3T9A4+Z+937l6X18elB9",
+	"94DePe0e2nio/ePTQ3x82N0PXz7cp4b712G7/ev4iOi8rWHN8DtcxHHFMc9tlDUd4Y2a8k7LHxZ5jI98",
+	"GMdcsZ4b/+t/4dZeLLIinWeAYx//60/88HF6mSYqZs3jKs35CKFwTP5MvL10DajwA94dKCzN+hpQ74rH",
+	"AG6HdWZPC7tDxasjEb/ypg96MtQ8S/cC/fXkUuniBBqGZ1jrGW4qOELrLogp+vPhwA81+cGcb6YUjsZS",
+	"CzWjUFHSPVAHq1AIe5UWIKVfKrxragZMu+JWwNfAs0CXDJtAEBjpLdjnudTjqfc2Y8ZNZi6GmIySy7Er",
+	"A4wcdr930OtT0aKA+BC366B6EL96ecZm+IW2e2N7CdyDfGynC31iL92KgCCPhoSaeZEcjy6ysB0X6rqg",
+	"dkAGiepuUuvh0zu9Wu9x6ZKh6KSgLWnZX4+2311klZKo1tk5ie9N3LuJKTezWrS+bym4UMDLsBWKgK0O",
+	"h0GIFW4qAmY6w2k33gi8CoPw3NMB71F1fnIsOB/Tyu0QcVipt/pN5d7QWpVXp4dDQMVv9UaRoMScgqZg",
+	"LMnH6JbEnYyENldOUefYgYGI5bm5VCNpl7N5YYhwAYDXVfgIB5PakVkUNk3UiJB/eI+cm3zkyk3GBHdB",
+	"0vmicHZ/5yrEk/htmqsuWElkkZ4DumWVWZOIgDya9CzGLoV2zISJlxVtVKBQAV/h953g5IY8fyob+D1o",
+	"aqjSEqHjGngJCinQ54UpxDxXFBWIn4j2740bquuWscpDt6hVygqtrqCRseGyXdiA03WfIn33pBxnAiTe",
+	"BfiAjz1+AipqTFMCkcm3n1rhjEv3e/tAfDie+X6v37vf6YkvQXoF0o8LOSA/NfiKqDSd4wwx/frH15EY",
+	"YjLGsPUdRIaXr3qkbwpuCY+m8+FR4W2k78DDnumnJh+rHjijRqGpOUZfYGy0ejkZiD/+AIGAbyPxA43B",
+	"9f/2O78GqLufsZoNpAY5IR7LDPVWy3KldkySkCuz9A0ZL2A5YGVnInYTGqDDLab7AadaxIi1F+Py0fco",
+	"pXbhCxDwrJmpoAKPTzqLUbcXbMpZUNSUyiaivfLqQPTBpyNtZUoH/YN+d/8AjibR9p740jBfIawYJYCR",
+	"4/bHpGt7S1Sgfvv0g8JUj+GRr6GHVBvnDAaqKTGXWF0jUYo5BgFDiZZk926jNYWv2YBcQGNIf2AXtbOa",
+	"QmnP3z95DU177vZDmryN6Y0Vndh5ggP558hbrZl6OsmaBo9S15E3rt/gX6AAf9Fg+acBrXYu11nfoZkV",
+	"XwQ3UpkU7U/Nz773A/1jBIsxQF2UhynRPI8DhIN21asKCIF5fe+H8o+3e4Gzae8c4jXigbCwRjLzERB4",
+	"jjT3hpsekRrj4gphS6o+KOyeBJxuGX1jS9WvrBBeifOJROwq+TOnqFbvhxdczf7w31y/Hx4xG5Q6ici8",
+	"7ni0hwigvA3EcYzpL5XE9cOp1ZWYKYwJ6rDPmqWoe1acew/FxBncbrCwCTawIZnBeHKKuyuu0rHqkHbo",
+	"JDVkHhTMAXZVcLeTSfRwj3twIYW2xiHmuZmlFuTXAJ9binndSJwo4DYJzIYocMVM7Ds5cg6le7ZmAXLj",
+	"TXOSESmMwomJgN/qou1pBA7JHXTU1EqKO9erSWlITTK3GDhr9xUACxBXnBnrYDtJtkLzvSBUAQuWSMYn",
+	"lYjOSyBYkBBlMBTYh0MQoeJTwkR3iXYvuPIcvJpDE7myKOK3E8oSgpA/G4WqMzopU7zeMey5vgd6A6gM",
+	"YOJwug4Of0g4rGB5b0vNFmOKAsds+Qt56UZDlH0uc4vYWDgBgiAVbbdAwUmhYGSJ78Hynpx9Q8ZptJjC",
+	"0UJKjaEUunCcAy0JLuyHiLIPp5LancrAZM+Bx9hoosbpDNOtZzPpPAnAKrMlCbqo7TTrNyhiuBtHmOSk",
+	"cCVqrjBCw2h2Zi1V0Rk0UUSuAocxREEECYZ9xWQvuvJRQsgsjS5DYeGzBK9mT9SjnFhFsUFkDR62OwjY",
+	"wDuHhw2FW47HCIVMF5y7c7QwyGy4VSxwYmzMYi4KI3SqWZD1cZjny3KNKIbTBbp6Vlhz62/wgrtw3vCL",
+	"exRhKdrMODi+mLSkTtB3yQJYboDuRZqQMIYsxBV+J1khCOJxwa6ijTKjZ9dKIy/yWDEuUpYXARIOelk6",
+	"Vpp1oeM5EPXuQa8fubCvXGGvFOD+/NnJky/PnlBGA38IGQsEr9wqP29FrUWecXaDHeztXV1d9ST+3DP5",
+	"xR5/a/e4RfwGq84WmaomPRBOGxUPbe33+EW2BrYGLRTUCXFtivkhzk0K/75QTdBofKwPADgVosfoApGl",
+	"lAw7KQBcf4mRPs512qPq+nTKnyWtQev3qviCu6oBEBz0+0Excfhn6DL9e86jIZp4U+4OdUEZIrV54DBh",
+	"NR70++ua8ePae8YuKeQVleSa1uCP32Fy90zmS8i8BsasEF6rkBeY4ehnbqkOonM6r13kVznGNauFpdoL",
+	"6tqdXkH5AfX1PaJXlEgL8v8YDcKCVsWVyd/gFpVWuyJfWEaXXtmTFzyyG/cE7TPzTKa13agnMK0sPPfw",
+	"PpY+WLaZn8faTQhd/Wt3AjRcp9V6OSnQc0BIOF+kIOlj/twWx56b2+3Yu0HusNDh0O/39v3wI/Efjl88",
+	"fx/r/zqUJjctPcVfbEljlK6QX89YXU4QLQmGuizyHCf4oH9/qEvUifquiBgM/zG7RyXlWMQBOfN9pZj1",
+	"hcwKEymEA6wacICTzPkoJC5v11VnoEHiSNoVB1qn9O2VLVsUvg0aj8nQEJiYh1qbIh0ry4ncYCZH3QN9",
+	"UXEQmwSD8k6qSKSQSLKMOFGdBO5MXqy5+6e0K++RHJ9iDqmytum8YveiMLSetz6f8NX9m786o6X9WstL",
+	"maIVZuPRLke+4Vhf7u+hvr72YH/yCSZODj75ZMXhYnIX64Ui7zG0A2K1jUCXVLagGPJIyII0GB8AD6mz",
+	"YAuiSLpYEPgzhHign87lvCVpMsAGXX1illH4Z5SsOPmIDjIF4urgHXOlLR48XzCejSe+aLzrnbV9eDrU",
+	"bbIu4oRjf23TpBOmwIF86iM4MJfLgLqoVd50Ws8wuBMXKURKt1idAlhSC/VKV/5l0KIZtKItDyrn/L6N",
+	"mlurlswvmwySez89bEjm3dhamqxrq6nww7rG8FTUG2rMsd5vyLH+7j1eftyt52Ytr8oRRfxt1Drc5tZ/",
+	"LhOX842f7N/8yddacty5SuijLejEU5Ofp0miMAP88ODRzV+8NuaF1Esenf2F6JinXHRV6jVUgJMENx9M",
+	"rHgKA/JGkciQWb4Sx+mRoh39QryiWapLQkg/b0UJq1njN1FG8knXiCJWa1YcKRxog5gCxoGRHESmxfly",
+	"qCEVMvixJ55yws7YzM5TzQg7x18+PhIxSHYoLKSaTehE9QoTD7U3q0dUocnomj4qIB3FMkx+GZk79snC",
+	"EPOjIOyNcqpaLmgqWDBfnt4JV50B4myJhrSloa4mEoHPxv27MUfpyNn1fabOUFfTgQgUHudcaRq8Eb0y",
+	"GwfzOrELFL2GmjsoU2hW6DhMmTZ0OzJeKZWxHdkJoe7WEc2y6MbdtUmmjjtt0mOvb9dkBUF/XZsljPt2",
+	"jXoke2iweqefyDxLlS2qFyAqrw0i1jeMAS5YZQDbQDmu9v9cFg29q+sbei/MHfT9ymUhrutllS/7ohsP",
+	"+gEQysGNPDpq3qDy9uyVCXCt98rR8YDBFW5i6ZD8jXZVX3DuI3O/c+Z+QgDeqQUbY8C7mfuu490hx3UY",
+	"zjexcnShvgd+jtGkFJs9AXfzM/K8ePQRo8cqyK5V+iJlWIGEYOToyYjtnHHkYB4oWzFXrqU1Wi8u4Sr3",
+	"ueGKUVTB4w9wv9aJy1RI8Fd+pfqHN3/xpSmeIhz4X+kdPKatoCOaFpYwfDh0EM6iL9T1vm/nra0PKxGi",
+	"tTvq0iJAQ3DeeIbyKhNInWKPGYRcYA3Fc47/DLWP1IbwJptu5hod/9dwPW9SaHGZ7Mcr+iu4osHRw4CC",
+	"MRN9dyP5cm2r69Zu6IYbWaY4wzTmxr6TVZDKFFghMb4E36W8oMJjjgbBI66ahcd+NXl6gejmLj3CZRb4",
+	"EpMWK3dTsqVIMaMpds2MzARS6eAb35Bns65IAYZDFeDhT7WTS3rilFuvDQMXJyEQ2qX/CzRKDDlxsFkc",
+	"/tF2gWPY1lAjKjGGPBitvDm8gBBUTh1EtHbUBth5hmaCDtMjvzycaxfPyRYw8mFY1CFHd5lJEM7CCuNQ",
+	"Y3Co9GFUPqIp8jlrbrYlFATaO12EKiZN2MVc5Vbh5NEU5oYGXlxbb6YCQcBrPAA/BVcQqvxOQdXYm8lc",
+	"jrcbBytKQk4wvqcYanJNSLQuIOKmVr7Cn3jpymeyo4UJP92oqUw1xsKf8/gB6eOw/yiidAk+2qPUjvhr",
+	"Tmo8xVyK9uHBAYeFnXM6DUt4ZbqrZ7DQ3pGHmhtqGv6zky/Ei/0+oEwfHHQiNmkECHOAGsf1TYAtcUQI",
+	"5iuO+FTFAxoDnTjEXCIejk/9EROcycXA2PyxxUTTmM+xHXlwqpFWV5D8XYhMSeuM4/gNYzvxPZAZPF5S",
+	"OwAR7n4ZuUiNeOAdAAeAs2kmpR9J5uU9xgAG1yzcggwuUHUSbgiYD2UFw3q6pjo8ilQTULkdQTJjOI0K",
+	"tmHwYkzLR9BzvEsQbhK5Leq4zAYeAfUE5rMR4oaOlE7sSCuVjCiwKR7wZGC4FTIACwAfuii9zFy5OBEY",
+	"3jS9mMLftJ9a5ujigF+wI5gLfg0dHnGeh3AoJTQWHkEkpLAKRIyCS7C4jPmr6ZLCqSjmF8GTYv6qDOjB",
+	"Re40STpE1J84RrGzrBNkH/9BQdmfHaUjZNGfm2S5hWDEQW/Ey6jQ7x9/cCUnWs/vI2+kz1RrcEAdEPRp",
+	"ywf1iQNYtuf3Uc9LNZeZJMx3cZkyfwKakssx8CKr5sVi1qNq19tIZn4xvTxVRVLlwuY1yXD/wyhuYZEp",
+	"zhCB9p6b8ZqaJK9kMfXshz+ORFwTNbAMYXWK0aZwgf/OpNL+FlLpidGTjMtwHu5vMaZXcpkZmbw25rnM",
+	"LxR992CbBbCLOUUGv1BJKl8vqeb64cHBNh9zNBUIsk90Ad7ov1K5+wlxoLDIgGYs/EhIJ8e6Mx3I49+P",
+	"383vRML3PDNFb64vttKIb2G1QmjLzGAobIyd2cuLmGf26svfi3QmL9Qm7fZVZopXX/7+feq3OIY9XoUG",
+	"M/d5qiXZDrcJKMJZftRof/GbBQcnUGUjQafovVuY3Cl/D1fqrART85KrB52fyfwNQiYwSLYvTB25LIBJ",
+	"mlBK2DnmblAou6s6LuZSq0xgNiGpWHgtfIKopDhLjKAdagLEc+17dO8A3QpaZ8/ZTdf77JsPcL3t5cVv",
+	"r28VIfjxQv9KL/TZNx/mQpcZXNtZqDYaip+twNTDnCiBAMKPSuDbAB+fJ4zaKUUqylKhJTQtus3lLRcu",
+	"c0vIQsTl87hUOFEhdOopZJ/WoYB6osyIZoSBOuK91EsHC895uARkXkSYIsTQa9AgONlhMZgoHFWK6A41",
+	"49GCrkmkyeWZUbYR5sJQAmyWKis4ublScEglQ01Kq8mJkAlJroWeCF0QBHuC1YbKOgLcD8IuDfVh/9F6",
+	"RTRYlHekW7dULMvdbA36vUcPohYfGhxBCiP9ttvvHx5UI1X/2O/1Dx5E8L+HD79DDz2nAmI5kfK7+6vf",
+	"7d+//93b77ZWL8N8+x30y7vzPIQDoC7WeeDZMDn3EKYRRTEztneeqLzX+qgKflQF33ukQpiniVHGrnRJ",
+	"GHIY0J4tWd0G1lbBkL0L98spKK42cHkyyoLzCnAYgxdaCSTTxzZAbF7pDyJsuPVOGwZPYFmXan2yWRMs",
+	"6loTjMRFqhWxFNgXmStXf4rwz7zZCI7gACpAEFZzBvnRjGReVt126a1sE4W2S9j79rOzl3vPnpyI/Yf9",
+	"gwdD/fP/9rC3v987IH+KSPJ0UhC74QxM6wIL2Ufhyq4EuLQItUVCeFKuZrlkol2ChMT8HqBinsEbaFid",
+	"UjHAFWZ26jdf/YojPE4rR3RdpAdubGrBZPhRUP+lCVlwsJywTieXBEGiAPLKU4E7jqj2pM3kSW+eTN5D",
+	"tMdrj+ZK3QRqCZu2Hj9lWGxUWnStxMHAyd1s7XMW61J/jnw2YhTYBjHJGYmC0/8jQmjDdsoqgJ5klpVD",
+	"7wk7NoQp/v2CKkg5wC6iSPiNLWSR2iIdR4x3CO1as0DUc3xCBkrImUQXM8rb6zDfI6/MYOPeqap9qX4n",
+	"97vUMI99LtpazlTEedqUnO1cVpk8v2fFn41WEayjBDrPdo9KkQBrJsUVpojrpE6r6XWmUEN99sVxF6rU",
+	"sRoFthRXEIcRxr37Hj2pFRc/FsXZZOQ4xUPy6vHTD0Vi+dS/sy2TL9FHmvqL09TXFYj9sMjeu2al7CIt",
+	"4id3ICa+MJdoUgx4Qz22RBRGABJ4bi4VE+BckSM0JhJIE7cOb4VJKDlTPV1FsP9U14lDTxxj00jD3DgI",
+	"HJjtE5j6CuEiMTu7ZemyhlAMb0kwAPoAyKqBFQRhF0Rm9IXKV2eGyR6PynIE8GCSIsJ/2yHyY/NUuLMs",
+	"dpYbsOeUNDJXxSLX5UIWhmJ21FUHIoroxyD8ECGMtLkiCm2ZlaWWS48Q8BijE7vSX26aUgvMW8yNTsfl",
+	"GCDkBVaQ2RlB0vpfbSyswuQjYVwRcPemy1r2GbxYgYAa6LqD26VMzK6bPORKhJDU9H5YpY5E50yJYctl",
+	"cfK3w9ZA2MV46iocIGfgAwYjdMdrqHETsC4iJYDdsyFj8phP4d0op9xplrVhNW8nZv9C0QvuSrUGLV6l",
+	"ViVUgdwGxM3rJdO5jhcKFtXymBBitEOYAq3bL2RDWhujQKNSyUe70Ee70AcIzaXbV5Kod4/O3cDkS0L2",
+	"3qLkA1rquJwmrPnCmE4ZxDiTOp0oW3ANLBR/GNEzGmpMhwftoKoW4CPUDQSrBkeksUwVlrFxRYGIOQw1",
+	"RX9OOdWf9QDi4lheE1/ric+B3ilbqftTFhMe6lXuzNBxQVWc8hfjauGwqYvj6jA91Pcg2lUcgdi/zmXu",
+	"uBVWpTjUcqh5B/Bz/CXubEwsPSt3/FdpAfLjW5dH97qyuB+1lV9BRn1w1JuSCe5GRYneWQ85bhZqByHs",
+	"B8BIWoF15fHWucryJNWIEvc8kIlj15/TUcrKY6EseeQ0HAmVlGRmjRNIbUntQwkeqj6Q+OnFfHf4VS58",
+	"+Lq3igCRQlxY1zs0+71kcVrlXG3Hyforv+iSsBHJmS1s4crpBmtEmhMhisOeqMSbsDnrnQTzkuBRNDvh",
+	"mHS5FT+nY67a45Y6Aj+uQVHS5EOdpMjVEyHHGDPMJayOyvJaoLfh6YOvSPejV3HXvyUlZYG1dit0ldVM",
+	"opo0YVpIEfPpT8/TLC0A2rxC0incvYGoizpNdyimthhq+NxyfkYDKS+1E0/SZbhHroEjoVWKzM2hP4Zc",
+	"ijzvsKhB63wlh7pUVwvfHeprU8RT5m8YS5eqapP62og5k17ov34dB686POm5W9OKWnwO/IsywznS+WwN",
+	"WmOT52pcdKcmt6p7LotC5cvuw1BlwhE7OgA1icZjNS+kHisxzlPEeBQzVeygHXky+wsFcfv+b+TKHzWl",
+	"j5rShxE73l3a2KAcVbBa30OAJ+lHYS9lSnFDPBhi+RRxEykGWfmbymh/lbJ9OMRN4n1l4T9K+L/8Vfum",
+	"uchzo7S/IVVhy6jMbST9oL7TxnsmngUlrKHZarHxYDJsE0DUfiqgCIJr2FHnyFdwBu196d3BWoHkaBeM",
+	"uDWVWBm+OihO7vRVgF3HaE0tQz1YbgQBBJY39psUR0KboXYxfJ1qiEtauKL2lZqkA4/POdT7/f7PP03g",
+	"FO5pM0NXJjTxm8cCf2njT+Iv//TPgn/uuPcQgwSkH0U45UP9428e/yj+8j//32spj6WM0wsXeVSYTOXw",
+	"eDQfF1g5xFiscEeRqT//y0Ff/Mal1Yqvz8STV8fi7NvuZ4efihfYuvis3+8/Dj1h1X08Ws1upWFhiakc",
+	"jTkuCRnNJnI8zlWSFmWRdpcN6zAajsuyl7i02ojcePe+cwCB7kGulePGdONqorGX0isFMnze8VDLAg4v",
+	"eZ2B2It6/nGlcZNzxlDgWUOU4ytQxo5qacusEFiuQLSS7Ew8pyeOdRCW1ZR6XSHPLqKKhpAW9IGyVBJ5",
+	"SXmeqF9SZjDNGEx/pM2GjUVDDS9Jh/WJ++LSW3HwrvKKzKlmcpFLbSkT2EWkhdDwj9hRJLyfCFr0RWvJ",
+	"Kcf5lqwi8b0daVOM3G9YF4ZnWKamo89Ii9WlKhsJk7vLJmpRyfwuIMxNUsgCBw8XVgOqbHYQLOaOUZDK",
+	"D31W7hzu6ii4MFjdWRbxhpzbkMz/tSh1AbhZa9A66B982u3f7/YPXu/3B334//8ROE1IFTH8+U2qSZHT",
+	"RaoXoOtFPm335OSb7gzRR2th0Yf9R9sHRYeL+QtpbOEQaIeTbUQuRyWFWRRAET+qcx/VuQ8SR4h21ubo",
+	"MtF+dvLN3snJN50tRU0vtt2c/rO2mhN9t8ck/D1lzQaBJHjTCWsGyHwtv86VQ5IFFwFh+WmotbnqDISc",
+	"GeZ0LuTBc/iCcmSQgeC3vmQtz22osV7TFsyNBE942XFHLsiL+LOlibFiXsSHKEESYQnAwOSVTAvvXcM4",
+	"ERTQWHyzKkSioYmNUj3CUiQxSGkaLd1lqEc5Cets9SZLVC6wqPG3LhCl0j5AixAXlhdqNDWLnEpehZJe",
+	"arkdLuMjC7cTIJlrfMHX6xKH/UNX2AcjfHKFod1UQ8YVT9oURcgV+nZnw/7QtG5Gd10Pj7ALNOsqN5kZ",
+	"imo9fXoi7t+//+gI45Bwc+W5VbpYhwoqi92xR9874qDbik3Ag+XWfzRX/CrCJ6u7AldV8rG8U1vFTSzk",
+	"btNJj21QhHBN1mockSIXGg/LdZhQcfMV5hK7KnUr7AWuLpbrHWpf02tLjglKjzVMK8XzZy/OQDlVxD4K",
+	"ALNxw0tsY0Lql8a94MaP7qjDofYx7+RwWa/TlPTwXRI5Q6r6TtoKk95BS6dFLpEIrygu+6Xi0pzp+aAh",
+	"Y/OzXRI2mxblY+rmR03lo6ayDXv5aiFB/lluoLN3msO5fbXZO2AxuxW5pZrY9Qq3iEMd1LdlEEHMnEGr",
+	"tnsRo+O/p+VMm7xeQx1yriatiHKUmjUjYF2diEL2iqkrQsWRMzC+ciZIVnCADVTFsaahDngTZczQa6nl",
+	"tlXCmWImpyCLApAGB6KsZjvUpfmvkbc5kyVMDAcEpj1XRNbuDRf9/v2xxv+ooIAtq2W8yJVl7Yljhkjc",
+	"j/pQLtPlaREO4m6883M8Z78w/6Q+m5jprgyz3kq60soa1ISGJvuHB9Dmd5tY+juxaFz7X5xP8yg2M+va",
+	"zXI3dN0N+8i3P/LtD8e3V/hVwHfS3JnP3gsv54K/29kSKz7u3S2LGdV/CWGvw6QsjCjRcqbWRZS84LG+",
+	"R6pCXWyKBeEF+1gr5e4zTbKsrD9dOythlj6/s52p/Q5DPEK7B3q54ayKMUO++1O93xOvjC2oohlBVMO/",
+	"8WWuTb8c6hLTowQnqN8P1zSZs6+DX9oH/X3Af1ZY0Sn3P2C87TIK/NRjDvssk1VrACZDzQgmMLZy6K4K",
+	"ebF6b+9Zl7lOdGqo3UAZ7gO7d9mh4FE+wAKYr6e5siTrZmpSCExfnQx1EKYRi0K+UUEdmXvWw4iHdVfd",
+	"qRJ2aq5wClmGICQQLUCcnbHpcyUWOv1+QWsPAqaztEMM+Abf8wtXHuzdvM53JlyyQbqULBc6LVqD1uxi",
+	"7zl2Uz24X9J7QFK//kbMp6YwM4WyziS9VC5FMtUiWdAYsDAWojlgMSw4Wq2o1mt3cdmKWh7oAUqW711v",
+	"L0LSkv5C8iLvZwNVf+Ygd5yfq3bej/y5xrpH5LdG+n+XvvH14yNiw6fW5O+GT+1YbRww/70fYJv/ewOo",
+	"/ijx/gpBxvDyeBoclRFjoVBotNqB3TcLtHymfwm5lj3MFBBGVTLCMi3x+sr+jQwH3ZIQIRaQYzl7X97S",
+	"Y2HnagzxDgH9C4jiFj7TAC68ocjxwf7hw8PP7n96+PAXLHW8ntiWIv5Hx+kvTy9earcb71n+Z+LBuRrb",
+	"EI2VvAnO8YuETxB0SeWiTe2iNErlmBKVqUIla1OjX9FA3qf9TOV2c9YDDfqjonvnpxoWnVd3+zyhW2uq",
+	"LkmWSrawMoRZhhFE/C6yrIJtINqIURDABYCO1YEqUSZTHCNVpiG3GVFPwi/iOL8w+iBNxFTaqQAgmw0a",
+	"1itX8v+X07Bg9iNmW8eZuhanZc5lYyLmdjmXJlMBLobKWztAF+Oi/ELxubwja+iBS2JufRT8Pwr+uzLy",
+	"udLodKQztDvZqzDovR/wcr7dY1a7nZu5JrUzXRxLHaClAdkTKWaywD99lcA0J3wBsigx/FePGuI5lUY3",
+	"DhtyKC9ok2sig49p9OvoYIPgTzTptpL/c/z6/UrW/32QkP8DiNZ8+DzK3F1dyYUG1Iudb+RJpmRuGWkD",
+	"oxEwC6yCqaFK+JPGUOWvseuP1+njdfrw14nO3rvfJtZX31t2P5qv2c5WlsUt3UWUzujrplKSoy1koSKs",
+	"hEs1s5FFaiUKU8iMQiZEO7bqewj8qZYWfyUvlOVcWkpfyFJbiLHR0BI6s6xSYohakR22HFxqMG2yXadW",
+	"JGaMESjg+nJRSzBra/IYP5oolbhywT6F+VxdpIjGDzhq6J7C96KhjsGrNnINpFbI7ApyJKwqRBvzzoSa",
+	"zYslomYz9CeHglmTCwtDiYYa45UhXXJmchW7NAsCfINHXGhcXKlcuRKyYmxmM3S89Yb6Ka4ODK06Iqt8",
+	"tQBswnvljB6rgWtW5mqo9WJ2juFevHy0Jyy5lEmplvvFOGhJ84I9zYeaE6ql5r5c4owfKJoAczpLGD6H",
+	"r6VWgK2lUNp1HXRHjYzlghJtBpjxjluAgKsoZnHsF2a29/B4ohmWn/dkAnmxMf3Ama90wn1aa8+ltEfr",
+	"s7X4zfDXuIN4To1ZRf4D/1M4CBf7V9aoLotHw9DhuowYstu/HCYzGa0s3BSOfd8Gbbdd4tr23PvxoJYQ",
+	"hLn7qfaQWmGKM7SIY8Ub6+tbrzVBneJ3T/CM7aykw60/wVPcWrUxw4/Cpn9W6yzICPVeMR+zE7g12O/3",
+	"o9KYDCWrfkEzMi3RU9WcxophZ5KoKV3Vj7a0u/coEcNCwm8mNSCDCkQpPbmb9Bp+e+8H+scoTd6+p2xM",
+	"x6GZM3dxokR5KcKBXEs8ijgq8Ut9JmWFi3NsBuaoiGMt0qREk6CuKlG/Q03gBGUPa7xXdBVW6UQTqj+8",
+	"ec9C1+1g6M5DjTNElsoPnZjS8eSiKsX7JjZK8j51L9XFp4etgIg86vcf7j96dPDg8OFh/9Gj/V+coFDm",
+	"8fqqCPDOR5n/1+GdcrCEhG5PyPZCm6v3R3oWW2fulW7t1VKuJufAMhDD2kHNFFcWx1dPoQRrLKxltMsr",
+	"mSuUnCjUqlYi656nPZXaMnV8lIGQ4qC/T2ihtmI5C4ROxL1ZOIxPknLJCHcpszQR54vCwffQyMZSM0Io",
+	"x7WZnEBxQKLnwKcI0gx8EJnFmjRZhK66CciV+JLtUOYfADSTkyNyThQ2RoR1G6plHAcil1dDnchCQiPk",
+	"8yumubnSkGC+BBgoGn+q54tCtA+vrzvUS1g0a6hPFxnQeLU0DDNNlIKC1wbBohM2KkYb4n6hkqUIacnt",
+	"ExNYhOLhaDhYEv4ZYU5h4gBbpDKQQdEkY7BobztXRNSUPyHiwohUFyYEhaLDUlwZF2GWGJiPsFPYMjnU",
+	"FeSTI8ev06QSqhdE6OMq/M3f/I0I3D5DfaaAPwSPun9QSyzaMYP4wVwVeapgNyaqJ/6gltQ6XjmHZjDU",
+	"BBiLGoolhUfNcPhQ+I0QaAsBrLMQB4cCk/ArWTb3MPAQzMboP6MCFgzhPaDvxd+evfwSFjwKFh9oxVzm",
+	"ZTElPTYeYk+0rYFAx0IJO5djxTCwcOxZp+MVnaHDqXNEHQ31ydk3lY5QpBYlN/ZA5bm8EucmgRIThQI7",
+	"WlecyZkSb9QyopLpwaQiLhvFU4Z7OUfPNZ29Tz5xZYiGWvgL9cknVCOjWOS6nNdBf7+kFNgPjgI5vYtd",
+	"i0GdFvRaZXtP1TyTS+w2X6gYQvIYvhdXtEyDqk7HRdkW4ZwGgGdUeREWPFNBlawgj4oIAMTeZxD2SPPm",
+	"rhEqAgZMcFLuUhXlGUFAeCpggquvRY4zIfQvk4sLVSCgLbTSpnmfqiJfdo8nhcrjjkjBFCMSQ4QB5pHa",
+	"KYwHWsZZHJedwVlm4gQkBTp4AJTFfw7htygdvlFLf7Xg6LTjQl0Xe2N7GXeG+vdKKyxpK8ZZqnRhSXPH",
+	"N+HC+5w84DH4kWh7kXCoWVE+XegTaM9H7so3yqJXWJS94cokapwxbpylkzvU4dG1wvHNI7IE+c4YBoxC",
+	"iNGCErRsh5rY47lKxFTlKqqdQDWZqDEccpO7mXprBgPnUcUgqZdBop8V6npuclyPniBA5xOS/7rg4RuI",
+	"chC++uRQU7AmFX60jO3mjFQr1zUmug5aQtkxFIWMA4SpWLTdwhDljV3dNtyQArX9zhFXbY7rgmnM0GtB",
+	"t8hGzhWHeIn2IYRuO2UEL2xqxdevn3Y/AzjojFgBkpIukScsXpZakV5ouJAdAt043P+sP9RtnjpgFZ7D",
+	"nI0LPBfxsBUfiedP4cienD5/KrJUK6F0AqWhn6caof6M5Qs61OOpzOW4UDn0Ff9N7OpD0/bAUsAD+yad",
+	"z+HQnGdSv8E2bfgDe/Do0hs02GG/bOejDeuJE5MtZtr6BBUUZ+BI4JQHsDw/ijG+JH70R1X8WNqfcnMl",
+	"fnTcDv8Y6h+73W7l/6CVGIDAYvGjWCorfhSxayHGP/D7WNCbHiHBvcwPROoj/NY8xM+RQZcf45/VT8n2",
+	"SW9XcRz9Vw65sfJzJP7yP/8/RL/WguMO5cdGV7JnWa7Y8MNQ+0VAjRH6L3sphYnaTF3G5MoH7gcxkWOs",
+	"dUhZrKIv2vQKiab7HWgISC1J/DSaucphJ6HUFUtGzjnMLqvcXNkqvQEiX24b3lfehVACJ2KJF9FxDCWL",
+	"aiPV7ei4iFP4vd5DsF5t+rclJlt2U+shWDGo5GWuWPJIqSYukWOeM7SEvyIromqoeA/CftOSfvu6hngL",
+	"UGSiF/H7L1m+X1gl4h5QcKytNpOZmBsUR6QWjq4hEdZIpeL93gPVvR93CJRUAF1bWNTFrALqVpjcHon4",
+	"S/klENRnehKXhVvSNyr06qMuhzZ1Ua5ITsj2Ej0fINQx5x2rLCO261ksENmlKAwZX83VPSvgTnvKiieL",
+	"PteuxjLsn0/ESNwSEqmRYpYSaKZfQ/o9ArFP4DqyXlKKO6QogSzIJJdBohxN48hrIHbQBkc/4EuH/Uef",
+	"kmwYVjqjigm4CSoX8R58WU/+pr9ocPQopuPR/H7c8WcG19gV+LQkNdM6tgHVFcy8pdoBF88TViJbYEgX",
+	"HoUDPnnQ79NvNhK+CafRukKbIM4gT6OsJElZ6dDUQb8PqekCNTi8yD43vSvOSAdDBY79DIq1ad8iSjlw",
+	"kIQ2ukvUhFInjkj7ECKTS5QMzw0Z7129svNlWJnunsVGEwVKQh6kdkET5zkCGaC7Dg13XBlQSL/kvV4v",
+	"dvtGvhsKfxsMdRzHQ/03LMtQxwHVdTlDKu/uizaz1lUW2hlqON6R0yJJwa7yA0f6I08TIkdhhtptZcRJ",
+	"RtHz/ajfexBBTnz/IIo2vtF/9FnzGwfRfq8Pbxz0HzS/cT86oDcO9/fxDTo97vcIP37QjzC7/mDNC/v3",
+	"79ML96MDXtA10Y6nizuBMK2ae+Bk4EnzYiCyDIayZcsAptSu8bT44Oq7yB3YPJrgaJUcet24ypff+9g8",
+	"Ah+amWQJU1jCxa0bZYj1ujNM3IYheskdRmeA+dSQRtYNyEn/Wy/aS/fB2/cDetv/rMSOCvZ00AqpSyty",
+	"57CWaeinwxiBtsD42hANowlzowTFOFgFxThAunFw+LABbIM+XwOwcX+1rf379xFewwtva4dUA/wF6uXh",
+	"fZ/vN7TcP2DytnaYtSb3gwabpt2neff3t23wIGiwYe5ANeE//YfbNngYNHi42uBn+4+gwc8ODrZt8LOg",
+	"wVX4k/1PD2EN9z+9/3AXKLLTRRB9HbWcIl858K2PTPPumGbNz1+niKgCOBsOykqYqJzq50pfFNPQRxdW",
+	"E/9wQfNg5dqMZY02X4aGCqr/cuZEGxRPFtpyNnMO9YpxO6LwIf6IZURfBJ4pNwdzBFnBTUbU1YWO0arq",
+	"qiKn1hlAuDe3dhydUqIOYKc1mxpYFrdJJD43JlNS4y3bLneZ6whw8jKaHgFs8mPe8sf0hffs6QVUDCH9",
+	"RZ6kRXCZQ1fvQm+Zl9jg1XVs5p08u69ZCQURFKHtKqb6mPO0SvM5R3qaKx1Aow41GcPFhfcDsKE6CMIU",
+	"VmmGFCFHjmUlFPys4NVNUing8kWBTb5TuqHAJi6qJvHAzr/qBegJNzdSnCNfRMPSP9OS1PleCAVvqCVW",
+	"qjBWNa3J1SYDPlQtARcRWEGG2pDLlCrWO1cOl080XOFXVT1AjpSuATY6CVwld68g7qoGvi8A7tsrf+9j",
+	"RHem8m0RbrSTCvgr0fY+Cr2/sNDLTmS2EK6SrI8i8EcR+KMI/FEE/oVEYHJJvEdJ+IetA6rfEboHpuOS",
+	"aqQLIhrglJyjjMure08+u38xdMuHm9OzSu5NrsYqxYIzVcK3LoD6Fv6B04V+3yVSYVjrafrHKORfAWym",
+	"u5N0eG91B3cPQaYyH+87W5G+CWInfa1KG1VvG0dtQTQG17DMFUSbzuYLDALWYxU55q58pIj1kb2r0PmE",
+	"3JViOBsVT0ziI86oc3HIFNhLqRmYTtGQSUaDd+HJFynIPui15UE4/DOcaTiMMnjaV36C6D0u7eTyt3Dn",
+	"fWaZj+k7DZM+hvqxytPLUo13c3SU6auTKIx+XGSVAmAYRjdOgcQFAXSURAK7EHOGyYgexYOh3u8FvVxV",
+	"hri2ktdAxG5S8dFQH4RNjM0iS0QlsLv2+v16j76Qps+Hq31xGH7BUZOwGDOg9IXJly6oW2Kop4/uwDJi",
+	"tbYe9EKQtOYcRF+St1L+jIMB+DRQ1dogvo/GFfYW1Wuw4ueVLl2cT1NN1VzhPPDoQLogxg5hIMlK5VYn",
+	"ba472SkvCbyHDdDHU5UrYKFrKrSKaWpxdWuFWrEFbBuyQSsnhKF2MFjIaWfYdVVPvoexuCLJ00nR4QxX",
+	"3lfcSbfkacFRvdViuLxo2AatF2WvwqdHQ/1peFwqVeIGIg6SK+E4PAzfDYrPibbXcuCmRBTd6+vP0WA7",
+	"AxwC3yqg+JUEbp+hjVdbpEHKLiiKriQSk9vYU4SXaJ4iu4QdaopaPca42YEIBYTJNM1/68JDy6LAGK+K",
+	"ES1Pv3h2Kk4PgbxmmaJE3/jzhU4gNhHG8PLcqvwSW4utaF/KjPF3cbJfn3z9QoxNokjZLhZBrnYlV20g",
+	"yiUQf/lP/wzBz5CnESw2PB7qea4geEhLwLf1hBG+GEsNIVocZUpVLnA4RyJOFDDWmG5geYrwF6SWT3Mz",
+	"i8uN7PREddEqQb7LoXYr5AJeUUrmDWdDZ26unERZho7JobZzYIt2qlQhrpDWwd+03LBli0xijGCOMc7Y",
+	"5u8i8dtIdCPxP0aikOdDjZGzvhqiZCbVEfNcTdJrXgLKLja2yM18qriqNHCekEdJYH+GFopi2yuQzbgk",
+	"tN8CiipzvJZjUjBrwAwTabGyZNfd8KRNs4fdy4PfqvwhLaE7Y0P9xfOH4vKg96C3L+KXp1//6bS/H4uZ",
+	"shbRBFItnpw+FJg4gUzJaBXUYRLtF2dfREP98vNT+unl53+HP9NUBzSxiA7iQqdFxL8IOo6RMOUBHuoi",
+	"nanII5aCJDVHEAJq21EKtv9GzNvVBbwjlCaON9RSjGWep5APTJkRmMPw4vnzV2KSU4UVA8LEF69fv4IC",
+	"L9rn6xTTXCm6KpSfv9BjlRcy1cVSnC+SC1WIpeLMhKDAssCYL8gip0qQuDkcu7hGAzn1ebMfQBHxdKaq",
+	"jdTxSJnauAMHi7KcK1HSnl5pWTXnwPNRQH4nlcetQz0CYL1JBaTs5qO9+bsNKZ72o3b1y2tXZ9XK+JSO",
+	"vNDvNb2TdCsf5fSuuZ7UTiB+eorl3B/QPggnUmDVLnFhFHq1nNRoS6s4pGMg+ketUFaBKlZdjcqVLlgK",
+	"AqT/sDZWWnpg2qVyZ640iPcYnhyURPCiYIm4wUG8bJ71wkWAaFOEyeZVKBvg92vyUcXmdFQsSVaR0FO7",
+	"oldeyXK5jziVhhQs4CUOOcS7B52lqCeeFRjvnijL4fmNmoT1MeZDHfSKODql/FdX0iGW350F3nCnyxEY",
+	"S1pYlU1QQ4BMLbQpuJkGat9C35iZykwwKByGDl5OWIW+ptC2kzccQAofjSOfEyDSpJKGWindhLUcwBYO",
+	"gheoRFxs2hcTKzzWzlTasFFWW9zUSCsY6nJ26520vIB34ajdgaXeMiqzEie5NkLz0eC+i9DcHEzZELN3",
+	"n8IUDx492iXEjhfxFwI5rbD3RvbrtWeP/ZiXRiWXaPqxQthHp8v7t+0miT+NhQkikL53pcOKqZrtIoxs",
+	"8LxwR3s/eN/72/dt2J2UeWtE7iMhx7mxFiZKF9AVMCKuj2bfoV6x+x6JG5if74oFAdantsHAEQSBU+az",
+	"rdGfiKytVaFW6QwUoK5MfYUx869rgG/8iO4mTOZ9upGqa/NR7fm1E56VWyprp/W9KUAl8Dxd4BIbbztN",
+	"aDP1+XyJ4ih0onKB8/pedtk8GwahoG/DaREe7R7VGwxEHGo/UMR3thFmvvPdhQFz3ZRy/KUZRshFkmLF",
+	"+TTDYX3LL3HRuAb4v7KcGvuRRWG8+dlDESowuomZTLyLCEci2pC360bYiSrGaYD4UhrsaCO3aDjNKIAA",
+	"RQusE4LOFZrpAivsULe91dXrQit+FTJyd1g58CsNjTKuKKjXCBYpmsAOo0Crg8WAKeJCQrBQCQUJP40K",
+	"4ybTIRsn/DtYTu49Sy+VX+2hxoXzrhJkAo8Gfhlp59zWELxpAydwe3nmOrsLZaGB+r8D2f/662ePHcG/",
+	"pW7xDtUR8G6BaYXQ0UOTwVVu9EWN5fe2LzD3rb9rv1CRuXLP17C48kqWB/yjJvFRk3jvDN1dDSHLk7c9",
+	"SPVNPJsNU92ZLFSeyux9RoSMTZ4QyjO71blPRGcZm2Rt+eAz/uKFH+T7pAS1zjaWFHYD+ogP+16KCq8c",
+	"lZ2qCb+nAsJjlbPtPFeuErAbHxx9WwCevDWMUMPeP7TF86djdJHH6Mx0SSzqei51opJR4COMKVYxHoOI",
+	"Ky/UiNBuYsYAiQuTqZyq77Z//hcho9L8m6txIfXFIpN5NNQL8Tsh9/7yT//LfRSqaiM0ecX5SMAc81zN",
+	"Zc6BR4BESEkyfqKEYQvClhaxe3k0Qce7gzHkWfPPDEBkCzWHMJEsBRQpjkWFgIBLgB8hH/HsuVek03yo",
+	"/Txt50gErogIfcDYhPN4I1i9D0qYSwLS5UCG3/ED8fNP4t/+b4KHsIfdd3xIVa4yWYB46U7fUId+27GZ",
+	"nWOCRNnBPUYLQvGYpnHPCrnXhhX/+advOkPd/tuT378ALBPx8//2oLff+/RIPFnkEmjO3smz18cn4quv",
+	"j1+I4/m8J5709gG9hys/+9JzQ83A5ODvAHIJci5CvKCFvX3Yf7ShZledrP0a6iPXUsQTePDly/vds9cv",
+	"T/7QBeAXfF45/Jje3nRZWoMH+EOaK+tt5Q+7/U+79/uvEcqAbeWQytIatPzlHc3KJckMfPj85esuGdr3",
+	"EbVgAbNROWjXNAdx6m/+Gf1oa3WdoxYeOQI6396+XtukX8jQvnJW1pp9mKW7FbxdYWMvBsTNIsneD3A2",
+	"PqZKfJS137fMQTQ3CFYUAW24ZVnjtef5ziXtRtP2jWS/wUABw/srsExvSaVK4vTROv1rAF5/l7u1m0Wa",
+	"Cv/tXNHsmbULZcHEKXUCkiQ0I9oeU3r/4DNxnha2U3p7IDlAE0y1dVZmNc5V4U3HGC3iMhF1tjzyUHEq",
+	"d/jh8BxFUMaiHmqsxoqBoZivkJkLkKnXS3mvYai/qGgXYO2ieSJEi/rOU5jK46hFC1dzc24floCz/oVk",
+	"Jez7hhxaPEBBgQ8+GhBqq1F4/1iZ9aOwsjMtRTIlJJ2ugIYy1dtSPKG3fd4mlTffmlSeqkvzhnVhbOmI",
+	"/S8l+mh/v1Mq5FpdlxjtVMhmqAMoVRf3lWO7CZNecuo3FmLF4a6heu/P9VKhJYerq0XLknyUOH4NIj1s",
+	"xbtfk1zpxL6nUlH0BujDNfxsBLt1tq6wOmOQzYd2hqGG7B1//mPR5rprIraZmQNiL4LwnEurQpz0mZLk",
+	"LOfwgLPH2FKZURi7L+IyFaocLrnJdWKuyg4P+lDkEXhrbjIHDWzBTFeIn//lQJw9Fu0rmUNZR7K5/fwv",
+	"9/EhBfN2MJoGXPhDfTZVV1OZQyYX/G/72dlL8fCzh/3uAU/nW2WLC8ztxpjW/e6BLRuPxH73PiBmH3QP",
+	"bCROu4c2EofdfYpO2u9fA6IoZB100MamYCElpZyWC2urWaCW8n4QzUKbwqcqHvl/hSAZYAPluIKhjn0H",
+	"AzGRmVUxmGIvU5OR2dUZVC1OJqzsCQ1C3POlyTDWGBNzJurK4T5D0Zb65hRTlXPArN90AA6m/cDYZ73I",
+	"Mk46oi5TWy5CTxwTprLYRzjlclZDDQf7SADshh5TVUVXOFOHJwKDCrCKZlvLHEHDC7cWaCeGTcRrJZih",
+	"R4Goi2giYxVxdua5QfybJUWaD/VXJwIZebLIlaW0fzke5ypJC0ayzxVYvwtgKjoRZy9fcd2Gdd7/36sC",
+	"R7OGj7x/pKOmbvjyv9c+/Gy3RiPCdXrlP2uAQ3qCKCtAP8KIewgBxHSAy7V4VnAw7gCR97ksGnpX1zf0",
+	"Xpg76PsLcwWZyMv6nYxKMQjzAasENKICSEVApNeN0v3eXGfzICyzeVCpsnnwgYvi0X1aF6ut8hQWBa6u",
+	"m1HkoeR1UpLGj97V91BEHlKtncTBleHchaZ0RkqeRDGjxsxhc6qcNxCr6KzflQEH2cPePDNFz15evCfx",
+	"C3uppGBTv3ENHKpkC5GgUCDOheHlQSllEMoOXOyJIp45eE/pAkUDzbyNZKKhDkQhWucyao5bQ9GDboXC",
+	"iPJMudBF9BNj9bcMePdpgzAC4gqOehPze5WZ4uyb33/kgR954EceGPDAdCYv1J69vPjt9Sy7RV4wkoaP",
+	"bOzui0iHpJdyfJF2R4Ko2B1zJehbjRc5WA2BKp4rmav8eFFMW4M/UkEBNOivyxuhX13lSlbUAmTeAat8",
+	"YLQiKxqHorjKlzJJcmWt2DNzpeU87S3lLMOs1YkqxlOHE9RWvYueiKdFMbeDvT2GL8vkeY8t9TFHiizy",
+	"rDVo7aHJn9eqPu5nQTmvhbYU6V1GC5Wpre3SjmA7vfKqwlcNALdPqchr2JajEZS6F2D4gABggybpxYZG",
+	"n2lYfSXmuUrSscNJdgbGCmJp2F75elOjX/kwdBhLmAEQTBJfaPq4TLWuljiPfIZivch3MVUOLGaiVFLp",
+	"hdNwVrr5pjHdOCrzr8syopw+oCE7ZKyC1r8fNzR8jNw3HcuMgTRsEJrF1RslZviaLB2nKlxW/qCp1VfP",
+	"yCAXvk4PGt5+hTGufsFMNcVTZWpc5Ean4zJAtrK5+HVDs8/BaaesL52M/5ypIk/Hrv3gbvbq8L10Wr57",
+	"+/8fAA==",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
