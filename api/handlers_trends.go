@@ -80,6 +80,9 @@ func trendOut(t *lab.Trend) oapi.Trend {
 // chartSeries is the trend as the control chart draws it: evaluated values only.
 func chartSeries(t *lab.Trend) curveplot.Series {
 	cs := curveplot.Series{Parameter: t.Query.Parameter}
+	if len(t.Points) > 0 {
+		cs.Unit = parameterUnit(t.Query.Parameter, t.Points[0].Curve.Unit)
+	}
 	if t.HasBaseline {
 		cs.Mean, cs.SD = t.Baseline.Mean, t.Baseline.SD
 	}
@@ -90,6 +93,21 @@ func chartSeries(t *lab.Trend) curveplot.Series {
 		cs.Points = append(cs.Points, curveplot.TrendPoint{At: p.Curve.AcquiredAt, Value: p.Value, Label: p.Curve.ID, Violations: p.Rules})
 	}
 	return cs
+}
+
+// parameterUnit is the unit of a trended parameter of curves whose analyte
+// is in unit: the slope is response per unit, the intercept and s(y/x) are
+// in response units, the LOD in the analyte's unit, R² has none.
+func parameterUnit(param, unit string) string {
+	switch param {
+	case lab.ParamSlope:
+		return "response per " + unit
+	case lab.ParamIntercept, lab.ParamResidualSD:
+		return "response"
+	case lab.ParamLOD:
+		return unit
+	}
+	return ""
 }
 
 // trendChart draws the control chart of t as SVG.

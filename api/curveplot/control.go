@@ -5,7 +5,6 @@ import (
 	"fmt"
 	"math"
 	"slices"
-	"strings"
 	"time"
 
 	"gonum.org/v1/plot"
@@ -20,6 +19,7 @@ import (
 // as drawn on a control chart.
 type Series struct {
 	Parameter string // e.g. "slope"
+	Unit      string // the parameter's unit, e.g. "response per ug/L"; "" for none
 	Points    []TrendPoint
 	Mean      float64 // baseline centre line
 	SD        float64 // baseline standard deviation
@@ -37,7 +37,8 @@ type TrendPoint struct {
 // in time order joined by a thin line, the centre line at Mean, warning
 // limits at Mean ± 2·SD (long dashes) and action limits at Mean ± 3·SD
 // (dots). A value that violates a rule is drawn as a larger filled square
-// instead of a circle and labelled with the rules it violates.
+// instead of a circle; which rules it violates is for the table beside the
+// chart (labels on the chart ran into each other and off its right edge).
 //
 // Values that are not finite are left out. Without a usable baseline
 // (SD not finite and positive, or Mean not finite) the chart shows the
@@ -76,10 +77,12 @@ func controlPlot(s Series, o Options) (*plot.Plot, error) {
 	if yLabel == "" {
 		yLabel = "Value"
 	}
+	if s.Unit != "" {
+		yLabel += " (" + s.Unit + ")"
+	}
 	p := newPlot(controlTitle(s, o), "Date (UTC)", yLabel)
 
 	var all, ok, bad plotter.XYs
-	var badLabels []string
 	tmin, tmax := math.Inf(1), math.Inf(-1)
 	for _, pt := range s.Points {
 		if !calib.Finite(pt.Value) || pt.At.IsZero() {
@@ -91,7 +94,6 @@ func controlPlot(s Series, o Options) (*plot.Plot, error) {
 		all = append(all, xy)
 		if len(pt.Violations) > 0 {
 			bad = append(bad, xy)
-			badLabels = append(badLabels, strings.Join(pt.Violations, ", "))
 		} else {
 			ok = append(ok, xy)
 		}
@@ -129,37 +131,6 @@ func controlPlot(s Series, o Options) (*plot.Plot, error) {
 		sc.GlyphStyle = draw.GlyphStyle{Color: alertColor, Radius: vg.Points(3.6), Shape: draw.BoxGlyph{}}
 		p.Add(sc)
 		p.Legend.Add("Rule violated", sc)
-		// Label each violation away from the centre line, clear of the limits.
-		for _, above := range []bool{true, false} {
-			var xys plotter.XYs
-			var labels []string
-			for i, xy := range bad {
-				if (xy.Y >= s.Mean) == above {
-					xys, labels = append(xys, xy), append(labels, badLabels[i])
-				}
-			}
-			if len(xys) == 0 {
-				continue
-			}
-			lb, err := plotter.NewLabels(plotter.XYLabels{XYs: xys, Labels: labels})
-			if err != nil {
-				return nil, fmt.Errorf("curveplot: violation labels: %w", err)
-			}
-			for i := range lb.TextStyle {
-				lb.TextStyle[i].Font = sans(7.5)
-				lb.TextStyle[i].Color = alertColor
-				lb.TextStyle[i].XAlign = draw.XCenter
-				lb.TextStyle[i].YAlign = draw.YBottom
-				if !above {
-					lb.TextStyle[i].YAlign = draw.YTop
-				}
-			}
-			lb.Offset = vg.Point{Y: vg.Points(5)}
-			if !above {
-				lb.Offset.Y = -vg.Points(5)
-			}
-			p.Add(lb)
-		}
 	}
 	switch {
 	case len(all) == 0:
@@ -189,7 +160,7 @@ func addLimits(p *plot.Plot, mean, sd float64) {
 		width  vg.Length
 		warn   bool
 	}{
-		{0, "Centre line (baseline mean)", dashBaseline, 1.2, false},
+		{0, "Centre line (mean)", dashBaseline, 1.2, false},
 		{2, "Warning limits, ±2 SD", dashWarning, 1, true},
 		{3, "Action limits, ±3 SD", dashAction, 1.3, false},
 	} {

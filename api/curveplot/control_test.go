@@ -34,22 +34,29 @@ func slopeSeries() Series {
 }
 
 func TestControlChartSVG(t *testing.T) {
-	b, err := ControlChart(slopeSeries(), Options{Analyte: "nitrate"})
+	s := slopeSeries()
+	s.Unit = "response per mg/L"
+	b, err := ControlChart(s, Options{Analyte: "nitrate"})
 	if err != nil {
 		t.Fatalf("ControlChart: %v", err)
 	}
 	got := svgText(t, b)
+	// The rules are listed in the table beside the chart, not written on it,
+	// where they ran into each other.
+	if strings.Contains(got, "1-3s, 2-2s") {
+		t.Error("the chart still writes the violated rules beside the points")
+	}
 	for _, want := range []string{
 		"Control chart: slope, nitrate",
 		"Date (UTC)",
 		"slope",
-		"Centre line (baseline mean)",
+		"Centre line (mean)",
 		"Warning limits, ±2 SD",
 		"Action limits, ±3 SD",
 		"In control",
 		"Rule violated",
-		"1-3s, 2-2s",
-		"2026-02-05", // a weekly tick (UTC midnights every 7 days from the epoch)
+		"slope (response per mg/L)", // the y axis names its unit
+		"2026-02-05",                // a weekly tick (UTC midnights every 7 days from the epoch)
 	} {
 		if !strings.Contains(got, want) {
 			t.Errorf("SVG text lacks %q", want)
@@ -92,7 +99,7 @@ func TestControlChartDegenerate(t *testing.T) {
 		want string // text the figure must show
 	}{
 		{"empty", Series{Parameter: "slope"}, "no values in this period"},
-		{"one value", one, "Centre line (baseline mean)"},
+		{"one value", one, "Centre line (mean)"},
 		{"NaN values", nan, "Rule violated"},
 		{"zero SD", noSD, "no control limits"},
 		{"NaN mean", nanMean, "no control limits"},
