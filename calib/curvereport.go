@@ -1,9 +1,9 @@
 package calib
 
 import (
+	"cmp"
 	"math"
 	"slices"
-	"sort"
 	"strings"
 
 	"gonum.org/v1/gonum/stat/distuv"
@@ -242,19 +242,24 @@ func resolveCurveOptions(opt Options) (Options, error) {
 // groupCurveLevels groups the fitted readings (pidx into points) by
 // concentration, in increasing concentration.
 func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
-	byX := map[float64]*curveLevel{}
+	// A calibration has few levels: a linear search finds each reading's.
 	var out []*curveLevel
 	for k, i := range pidx {
 		p := points[i]
-		l := byX[p.X]
+		var l *curveLevel
+		for _, o := range out {
+			if o.x == p.X {
+				l = o
+				break
+			}
+		}
 		if l == nil {
-			l = &curveLevel{label: p.Level, x: p.X, anchor: strings.HasPrefix(strings.ToLower(p.Level), AnchorPrefix)}
-			byX[p.X] = l
+			l = &curveLevel{label: p.Level, x: p.X, anchor: isAnchor(p.Level)}
 			out = append(out, l)
 		}
 		l.idx = append(l.idx, k)
 	}
-	sort.Slice(out, func(i, j int) bool { return out[i].x < out[j].x })
+	slices.SortFunc(out, func(a, b *curveLevel) int { return cmp.Compare(a.x, b.x) })
 	for _, l := range out {
 		var s, ss float64
 		for _, k := range l.idx {
@@ -270,6 +275,12 @@ func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
 		}
 	}
 	return out
+}
+
+// isAnchor reports whether a level label starts with AnchorPrefix, in any
+// case.
+func isAnchor(label string) bool {
+	return len(label) >= len(AnchorPrefix) && strings.EqualFold(label[:len(AnchorPrefix)], AnchorPrefix)
 }
 
 // setLevelFits sets each level's mean fitted response.
@@ -650,6 +661,18 @@ func (r *Report) rawWeight(x, y float64) float64 {
 // is reused.
 func (r *Report) unknownVar(c calibCurve, x float64, m int, grad []float64) (fx, v float64) {
 	fx = c.Eval(x, r.Coefficients, grad)
+	return fx, r.varAt(c, x, fx, m, grad)
+}
+
+// unknownVarSlope is unknownVar that also returns the curve's slope at x,
+// from the same evaluation of the curve.
+func (r *Report) unknownVarSlope(c calibCurve, x float64, m int, grad []float64) (fx, v, slope float64) {
+	fx, slope = c.evalSlope(x, r.Coefficients, grad)
+	return fx, r.varAt(c, x, fx, m, grad), slope
+}
+
+// varAt is unknownVar given fx = f(x) and grad = ∇βf(x).
+func (r *Report) varAt(c calibCurve, x, fx float64, m int, grad []float64) (v float64) {
 	w0 := r.WeightScale * r.rawWeight(x, fx)
 	if r.Weighting == WeightInvS2 {
 		// Level SDs set the calibrators' scale; the unknown's weight
@@ -662,7 +685,7 @@ func (r *Report) unknownVar(c calibCurve, x float64, m int, grad []float64) (fx,
 			v += grad[j] * r.Covariance[j][k] * grad[k]
 		}
 	}
-	return fx, v
+	return v
 }
 
 // s2Norm brings the θ model's raw weights to the calibrators' 1/s² scale:
@@ -704,8 +727,8 @@ func (r *Report) profile(levels []*curveLevel, cd *CurveDetails) {
 		if i == n-1 {
 			x = r.Range.High
 		}
-		_, v := r.unknownVar(c, x, cd.Replicates, grad)
-		se := math.Sqrt(v) / math.Abs(c.slope(x, r.Coefficients))
+		_, v, sl := r.unknownVarSlope(c, x, cd.Replicates, grad)
+		se := math.Sqrt(v) / math.Abs(sl)
 		pp := ProfilePoint{X: x}
 		if Finite(se) {
 			pp.CVPct, pp.OK = 100*se/x, true
