@@ -102,16 +102,7 @@ func logU(x, c float64) float64 {
 // L = eᵗ/(1 + eᵗ), 1 − h and sp = ln(1 + eᵗ) (sp only for the 5PL),
 // without overflow and from one exponential for the 4PL (where 1 − h = L).
 func (l logistic) core(t, g float64) (h, lg, omh, sp float64) {
-	var e, q float64
-	if t > 0 {
-		e = math.Exp(-t)
-		q = 1 + e
-		h, lg = e/q, 1/q
-	} else {
-		e = math.Exp(t)
-		q = 1 + e
-		h, lg = 1/q, e/q
-	}
+	h, lg, e := core4(t)
 	if !l.five {
 		return h, lg, lg, 0
 	}
@@ -120,6 +111,17 @@ func (l logistic) core(t, g float64) (h, lg, omh, sp float64) {
 		sp += t
 	}
 	return math.Exp(-g * sp), lg, -math.Expm1(-g * sp), sp
+}
+
+// core4 returns h = 1/(1 + eᵗ) and L = eᵗ/(1 + eᵗ) = 1 − h from one
+// exponential, e = e^(−|t|), small enough to be inlined.
+func core4(t float64) (h, lg, e float64) {
+	e = math.Exp(-math.Abs(t))
+	q := 1 / (1 + e)
+	if t > 0 {
+		return e * q, q, e
+	}
+	return q, e * q, e
 }
 
 // g returns the asymmetry (1 for the 4PL).
@@ -178,24 +180,41 @@ func (l logistic) evalU(u float64, beta, grad []float64) (float64, float64) {
 }
 
 // evalBatch is Eval over every reading, with lx[i] = ln x[i] given (the
-// solver computes it once): f[i] = f(x[i]; β) and, when jac is not nil, row
-// i of jac (NumParams wide) the gradient there. ln c is taken once.
+// solver computes it once): f[i] = f(x[i]; β) and, when jac is not nil, the
+// gradients column-major, ∂f/∂βⱼ at x[i] in jac[j*n+i]. ln c is taken once.
 func (l logistic) evalBatch(x, lx, beta, f, jac []float64) {
-	p := l.NumParams()
+	n, p := len(x), l.NumParams()
 	ok := beta[2] > 0
 	lc := math.Log(beta[2])
+	f = f[:n]
+	lx = lx[:n]
+	var g [5]float64
 	for i, xi := range x {
-		var g []float64
+		var gi []float64
 		if jac != nil {
-			g = jac[i*p : i*p+p]
+			gi = g[:p]
 		}
 		switch {
 		case !(xi > 0):
-			f[i] = l.evalZero(xi, beta, g)
+			f[i] = l.evalZero(xi, beta, gi)
 		case !ok:
 			f[i] = math.NaN()
+		case !l.five:
+			// The 4PL written out (evalU with g = 1): the solver's loop.
+			a, b, c, d := beta[0], beta[1], beta[2], beta[3]
+			u := lx[i] - lc
+			h, lg, _ := core4(b * u)
+			f[i] = d + (a-d)*h
+			if jac != nil {
+				k := (a - d) * h * lg
+				jac[i], jac[n+i], jac[2*n+i], jac[3*n+i] = h, -k*u, k*b/c, lg
+			}
+			continue
 		default:
-			f[i], _ = l.evalU(lx[i]-lc, beta, g)
+			f[i], _ = l.evalU(lx[i]-lc, beta, gi)
+		}
+		for j, v := range gi {
+			jac[j*n+i] = v
 		}
 	}
 }

@@ -211,8 +211,8 @@ func bounds(opt NLLSOptions, j int) (lo, hi float64) {
 
 // batchCurve is a Curve that evaluates every reading in one call, given
 // lx[i] = ln x[i] (−Inf at 0, NaN below), which the solver computes once:
-// f[i] = f(x[i]; β) and, when jac is not nil, row i of jac (NumParams wide)
-// the gradient there. The calibration models implement it, so that what
+// f[i] = f(x[i]; β) and, when jac is not nil, the gradients column-major:
+// ∂f/∂βⱼ at x[i] in jac[j*n+i]. The calibration models implement it, so that what
 // depends only on β (ln c of the logistic) is computed once per pass.
 type batchCurve interface {
 	evalBatch(x, lx, beta, f, jac []float64)
@@ -230,11 +230,12 @@ type nllsState struct {
 	free    []int
 	beta    []float64 // current parameters (all p)
 	trial   []float64
+	grad    []float64 // scratch gradient of a Curve without evalBatch
 	r       []float64 // √W·(y − f) at beta
 	rt      []float64 // the same at trial
 	f       []float64 // model values, scratch
-	jfull   []float64 // the Jacobian over all p parameters, n×p row-major, scratch
-	jac     []float64 // √W·J over the free parameters, n×k row-major
+	jfull   []float64 // the Jacobian over all p parameters, column-major (column j at jfull[j*n:]), scratch
+	jac     []float64 // √W·J over the free parameters, column-major: column l at jac[l*n:]
 	jacAt   bool      // jac and r belong to beta
 	d       []float64 // Moré's column scales
 	ss      float64
@@ -254,7 +255,7 @@ func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nlls
 	n, p, k := len(x), c.NumParams(), len(free)
 	k1 := max(k, 1)
 	// One backing array for every float64 buffer.
-	sizes := []int{n, p, p, n, n, n, n * p, n * k, k, n * (k + 1), k * k, k, 2 * k1 * (k1 + 1), k1, k, k, n}
+	sizes := []int{n, p, p, p, n, n, n, n * p, n * k, k, n * (k + 1), k * k, k, 2 * k1 * (k1 + 1), k1, k, k, n}
 	tot := 0
 	for _, v := range sizes {
 		tot += v
@@ -266,7 +267,7 @@ func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nlls
 		return v
 	}
 	s := &nllsState{c: c, x: x, y: y, opt: opt, free: free}
-	s.sw, s.beta, s.trial = take(n), take(p), take(p)
+	s.sw, s.beta, s.trial, s.grad = take(n), take(p), take(p), take(p)
 	s.r, s.rt, s.f, s.jfull, s.jac = take(n), take(n), take(n), take(n*p), take(n*k)
 	s.d, s.big, s.rk, s.qtr = take(k), take(n*(k+1)), take(k*k), take(k)
 	s.small, s.z, s.g, s.delta = take(2*k1*(k1+1)), take(k1), take(k), take(k)
@@ -301,13 +302,17 @@ func (s *nllsState) eval(beta []float64, jac bool) {
 		s.bc.evalBatch(s.x, s.lx, beta, s.f, jf)
 		return
 	}
-	p := len(beta)
+	n, p := len(s.x), len(beta)
+	g := s.grad
 	for i, xi := range s.x {
-		var g []float64
-		if jac {
-			g = jf[i*p : i*p+p]
+		if !jac {
+			s.f[i] = s.c.Eval(xi, beta, nil)
+			continue
 		}
 		s.f[i] = s.c.Eval(xi, beta, g)
+		for j := 0; j < p; j++ {
+			jf[j*n+i] = g[j]
+		}
 	}
 }
 
@@ -331,15 +336,18 @@ func (s *nllsState) residuals(beta, r []float64) float64 {
 // column scales; it reports whether everything is finite.
 func (s *nllsState) evalJacobian() bool {
 	s.eval(s.beta, true)
-	p, k := len(s.beta), len(s.free)
+	n := len(s.x)
 	s.ss = 0
 	for i := range s.x {
 		ri := s.sw[i] * (s.y[i] - s.f[i])
 		s.r[i] = ri
 		s.ss += ri * ri
-		row := s.jfull[i*p : i*p+p]
-		for l, j := range s.free {
-			s.jac[i*k+l] = s.sw[i] * row[j]
+	}
+	sw := s.sw[:n]
+	for l, j := range s.free {
+		src, dst := s.jfull[j*n:j*n+n], s.jac[l*n:l*n+n]
+		for i, v := range src {
+			dst[i] = sw[i] * v
 		}
 	}
 	s.jacAt = true
@@ -348,8 +356,7 @@ func (s *nllsState) evalJacobian() bool {
 	}
 	for l := range s.free {
 		var nn float64
-		for i := range s.x {
-			v := s.jac[i*k+l]
+		for _, v := range s.jac[l*n : l*n+n] {
 			nn += v * v
 		}
 		if !Finite(nn) {
@@ -362,7 +369,7 @@ func (s *nllsState) evalJacobian() bool {
 
 // iterate runs the Levenberg–Marquardt loop and returns how it ended.
 func (s *nllsState) iterate() NLLSResult {
-	n, k := len(s.x), len(s.free)
+	n := len(s.x)
 	opt := s.opt
 	lambda, nu := 1e-3, 2.0
 	g, delta := s.g, s.delta
@@ -377,9 +384,10 @@ func (s *nllsState) iterate() NLLSResult {
 		gmax := 0.0
 		for l, j := range s.free {
 			var gl, cn float64
-			for i := 0; i < n; i++ {
-				a := s.jac[i*k+l]
-				gl += a * s.r[i]
+			col := s.jac[l*n : l*n+n]
+			r := s.r[:n]
+			for i, a := range col {
+				gl += a * r[i]
 				cn += a * a
 			}
 			g[l] = gl
@@ -469,8 +477,8 @@ func (s *nllsState) factor() {
 			continue
 		}
 		sc := s.scale(l)
-		for i := range col {
-			col[i] = s.jac[i*k+l] / sc
+		for i, v := range s.jac[l*n : l*n+n] {
+			col[i] = v / sc
 		}
 	}
 	copy(a[k*n:k*n+n], s.r)
@@ -512,6 +520,7 @@ func householderQR(a []float64, n, m, kc int) {
 		for l := j + 1; l < m; l++ {
 			cl := a[l*n : l*n+n]
 			cr := cl[j+1:]
+			cr = cr[:len(v)]
 			w := cl[j]
 			for i, vi := range v {
 				w += vi * cr[i]
@@ -611,13 +620,16 @@ func (s *nllsState) step(lambda float64, delta []float64) bool {
 // the (projected) step δ: ‖r‖² − ‖r − J·δ‖² = Σ (J·δ)ᵢ(2rᵢ − (J·δ)ᵢ),
 // summed in that form so that it does not cancel against ‖r‖².
 func (s *nllsState) predicted(delta []float64) float64 {
-	var pred float64
-	k := len(s.free)
-	for i := range s.x {
-		var v float64
-		for l, jl := range s.jac[i*k : i*k+k] {
-			v += jl * delta[l]
+	n := len(s.x)
+	jd := s.f[:n] // scratch: the model values are not needed between passes
+	clear(jd)
+	for l, dl := range delta {
+		for i, v := range s.jac[l*n : l*n+n] {
+			jd[i] += v * dl
 		}
+	}
+	var pred float64
+	for i, v := range jd {
 		pred += v * (2*s.r[i] - v)
 	}
 	return pred
@@ -698,16 +710,15 @@ func (s *nllsState) covariance(sd float64) ([]float64, bool) {
 	a, sc, ri, cov := work[:n*k], work[n*k:n*k+k], work[n*k+k:n*k+k+k*k], work[n*k+k+k*k:]
 	for l := 0; l < k; l++ {
 		var nn float64
-		for i := 0; i < n; i++ {
-			v := s.jac[i*k+l]
+		for _, v := range s.jac[l*n : l*n+n] {
 			nn += v * v
 		}
 		if !(nn > 0) || math.Sqrt(nn)*math.Abs(s.beta[s.free[l]]) <= 1e-12*s.ynorm {
 			return nil, false
 		}
 		sc[l] = 1 / math.Sqrt(nn)
-		for i := 0; i < n; i++ {
-			a[l*n+i] = s.jac[i*k+l] * sc[l]
+		for i, v := range s.jac[l*n : l*n+n] {
+			a[l*n+i] = v * sc[l]
 		}
 	}
 	householderQR(a, n, k, k)
