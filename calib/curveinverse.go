@@ -185,12 +185,7 @@ func (r *Report) curveMeanBand(c calibCurve, x float64) (float64, bool) {
 	}
 	grad := make([]float64, p)
 	c.Eval(x, r.Coefficients, grad)
-	var v float64
-	for j := range grad {
-		for k := range grad {
-			v += grad[j] * r.Covariance[j][k] * grad[k]
-		}
-	}
+	v := quadForm(r.Covariance, grad)
 	h := t * math.Sqrt(max(v, 0))
 	return h, Finite(h)
 }

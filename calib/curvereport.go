@@ -425,12 +425,7 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 		for _, i := range pidx {
 			pr := &r.Points[i]
 			c.Eval(pr.X, fit.Coefficients, g)
-			var h float64
-			for j := range g {
-				for k := range g {
-					h += g[j] * fit.Covariance[j][k] * g[k]
-				}
-			}
+			h := quadForm(fit.Covariance, g)
 			pr.Leverage = pr.Weight * h / s2
 			if 1-pr.Leverage > 1e-10 {
 				pr.Studentized = pr.WeightedResidual / (fit.ResidualSD * math.Sqrt(1-pr.Leverage))
@@ -680,10 +675,19 @@ func (r *Report) varAt(c calibCurve, x, fx float64, m int, grad []float64) (v fl
 		w0 = r.WeightScale * r.rawWeight(x, fx) * r.s2Norm()
 	}
 	v = r.ResidualSD * r.ResidualSD / (float64(m) * w0)
-	for j := range grad {
-		for k := range grad {
-			v += grad[j] * r.Covariance[j][k] * grad[k]
+	return v + quadForm(r.Covariance, grad)
+}
+
+// quadForm is gᵀ·C·g.
+func quadForm(c [][]float64, g []float64) float64 {
+	var v float64
+	for j, gj := range g {
+		row := c[j][:len(g)]
+		var s float64
+		for k, gk := range g {
+			s += row[k] * gk
 		}
+		v += gj * s
 	}
 	return v
 }

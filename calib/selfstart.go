@@ -129,15 +129,17 @@ func startLogistic(x, y []float64, e [4]float64, fixed func(int) (float64, bool)
 	if v, ok := fixed(3); ok {
 		d = v
 	}
-	var lx, z, all []float64
+	buf := make([]float64, 0, 3*len(x))
+	all, lx, z := buf[0:0:len(x)], buf[len(x):len(x):2*len(x)], buf[2*len(x):2*len(x)]
 	for i := range x {
 		if x[i] > 0 {
-			all = append(all, math.Log(x[i]))
+			l := math.Log(x[i])
+			all = append(all, l)
 			if a == d {
 				continue
 			}
 			u := min(max((y[i]-d)/(a-d), 0.01), 0.99)
-			lx = append(lx, math.Log(x[i]))
+			lx = append(lx, l)
 			z = append(z, math.Log(1/u-1))
 		}
 	}
