@@ -2,6 +2,7 @@ package calib
 
 import (
 	"cmp"
+	"maps"
 	"math"
 	"slices"
 	"strings"
@@ -84,6 +85,76 @@ func Equation(m Model) string {
 		return "y = y0 + a·(1 − e^(−b·x))"
 	}
 	return ""
+}
+
+// CurveParameters names coefficients of a non-linear model (see
+// ParameterNames) whose starting value replaces the self-started one
+// (Start) or that are held at a value and not fitted (Fixed; for example a
+// 4PL's lower asymptote a fixed to the blank's response). A fixed
+// coefficient does not count against the degrees of freedom and has no
+// standard error.
+type CurveParameters struct {
+	Start map[string]float64 `json:"start,omitempty"`
+	Fixed map[string]float64 `json:"fixed,omitempty"`
+}
+
+// IsZero reports whether p names no coefficient.
+func (p CurveParameters) IsZero() bool { return len(p.Start) == 0 && len(p.Fixed) == 0 }
+
+// Equal reports whether p and q name the same values.
+func (p CurveParameters) Equal(q CurveParameters) bool {
+	return maps.Equal(p.Start, q.Start) && maps.Equal(p.Fixed, q.Fixed)
+}
+
+// Check validates p for model m: only a non-linear model takes
+// parameters, each name is one of the model's, each value finite, and a
+// coefficient is not both started and fixed. The error's field is
+// "options.curve", or "options.curve.start.NAME" / "options.curve.fixed.NAME".
+func (p CurveParameters) Check(m Model) error {
+	if p.IsZero() {
+		return nil
+	}
+	names := ParameterNames(m)
+	if names == nil {
+		return inputErr("options.curve", "the model %s has no non-linear coefficients to start or fix", m)
+	}
+	for _, g := range [...]struct {
+		field string
+		v     map[string]float64
+	}{{"start", p.Start}, {"fixed", p.Fixed}} {
+		for name, v := range g.v {
+			if !slices.Contains(names, name) {
+				return inputErr("options.curve."+g.field+"."+name, "%q is not a coefficient of %s (%s)", name, m, strings.Join(names, ", "))
+			}
+			if !Finite(v) {
+				return inputErr("options.curve."+g.field+"."+name, "the value is not a finite number")
+			}
+			if _, both := p.Fixed[name]; both && g.field == "start" {
+				return inputErr("options.curve."+g.field+"."+name, "%q is both started and fixed", name)
+			}
+		}
+	}
+	return nil
+}
+
+// arrays returns p as CurveOptions' Start and Fixed (NaN where unnamed),
+// nil when p names nothing of that kind.
+func (p CurveParameters) arrays(m Model) (start, fixed []float64) {
+	names := ParameterNames(m)
+	conv := func(v map[string]float64) []float64 {
+		if len(v) == 0 {
+			return nil
+		}
+		out := make([]float64, len(names))
+		for j, n := range names {
+			out[j] = math.NaN()
+			if x, ok := v[n]; ok {
+				out[j] = x
+			}
+		}
+		return out
+	}
+	return conv(p.Start), conv(p.Fixed)
 }
 
 // CurveDetails is what a Report of a non-linear model adds (nil for the
@@ -172,9 +243,11 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 	}
 	w := make([]float64, len(x))
 	var fit *CurveFit
+	co := CurveOptions{Model: opt.Model}
+	co.Start, co.Fixed = opt.Curve.arrays(opt.Model)
 	switch opt.Weighting {
 	case WeightNone:
-		fit, err = FitCurve(x, y, nil, CurveOptions{Model: opt.Model})
+		fit, err = FitCurve(x, y, nil, co)
 		cd.ThetaMethod = "unweighted: θ = 0"
 	case WeightInvY2:
 		for i, v := range y {
@@ -183,7 +256,7 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 				return nil, inputErr("points", "1/y² weighting: reading %d has response 0", pidx[i])
 			}
 		}
-		fit, err = FitCurve(x, y, w, CurveOptions{Model: opt.Model})
+		fit, err = FitCurve(x, y, w, co)
 		cd.Theta, cd.ThetaMethod = 1, "1/y²: θ = 1 (an unknown is weighted 1/ŷ² at its concentration)"
 	case WeightInvS2:
 		floor := math.Inf(1)
@@ -204,7 +277,7 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 				w[k] = 1 / (s * s)
 			}
 		}
-		fit, err = FitCurve(x, y, w, CurveOptions{Model: opt.Model})
+		fit, err = FitCurve(x, y, w, co)
 		if err == nil && fit.Outcome == Converged {
 			setLevelFits(levels, fit)
 			th, ok := thetaFromReplicates(levels)
@@ -215,9 +288,9 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 			}
 		}
 	case WeightVarPower:
-		fit, err = FitCurve(x, y, nil, CurveOptions{Model: opt.Model})
+		fit, err = FitCurve(x, y, nil, co)
 		if err == nil && fit.Outcome == Converged {
-			fit, cd.Theta, cd.ThetaIterations, cd.ThetaMethod, err = estimateTheta(x, y, w, levels, fit, opt.Model)
+			fit, cd.Theta, cd.ThetaIterations, cd.ThetaMethod, err = estimateTheta(x, y, w, levels, fit, co)
 		}
 	}
 	if err != nil {
@@ -230,6 +303,9 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 
 // resolveCurveOptions validates opt for a non-linear model.
 func resolveCurveOptions(opt Options) (Options, error) {
+	if err := opt.Curve.Check(opt.Model); err != nil {
+		return opt, err
+	}
 	if opt.Weighting == "" {
 		opt.Weighting = WeightNone
 	}
@@ -317,8 +393,8 @@ func thetaFromReplicates(levels []*curveLevel) (float64, bool) {
 // the curve is refitted from the previous coefficients, and so on until θ
 // moves by less than 1e-4 (at most 20 rounds). The level SDs are the
 // replicates' own and do not change; the fitted means do.
-func estimateTheta(x, y, w []float64, levels []*curveLevel, fit *CurveFit, m Model) (*CurveFit, float64, int, string, error) {
-	c := curveOf(m)
+func estimateTheta(x, y, w []float64, levels []*curveLevel, fit *CurveFit, co CurveOptions) (*CurveFit, float64, int, string, error) {
+	c := curveOf(co.Model)
 	theta, rounds := 0.0, 0
 	const how = "power_of_mean: Var(y) = σ²·|ŷ|^(2θ); θ is the least-squares slope of ln(level SD) on ln|ŷ| over the calibrator levels with replicates (clamped to [0, 2]), iterated with a weighted refit until θ moves by less than 1e-4"
 	for rounds < 20 {
@@ -332,7 +408,7 @@ func estimateTheta(x, y, w []float64, levels []*curveLevel, fit *CurveFit, m Mod
 		for i := range x {
 			w[i] = math.Pow(max(math.Abs(c.Eval(x[i], fit.Coefficients, nil)), floor), -2*th)
 		}
-		nf, err := FitCurve(x, y, w, CurveOptions{Model: m, Start: fit.Coefficients})
+		nf, err := FitCurve(x, y, w, CurveOptions{Model: co.Model, Start: fit.Coefficients, Fixed: co.Fixed})
 		if err != nil {
 			return nil, 0, rounds, how, err
 		}
