@@ -9,6 +9,7 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
 	"curvekeeper/api/oapi"
 )
@@ -156,4 +157,49 @@ func elisaStandards(analyte string) []map[string]any {
 		stds = append(stds, map[string]any{"analyte": analyte, "level": fmt.Sprintf("C%d", i+1), "concentration": x, "responses": ys[i]})
 	}
 	return stds
+}
+
+// TestTrendFourPLParameters: the trends route follows a 4PL's coefficients
+// by name. Three invented plates whose top asymptote rises 4 % a plate give
+// three points per parameter, each equal to that curve's stored
+// coefficient (d rising plate to plate); the straight line's slope has no
+// value on these curves, and the notes say so.
+func TestTrendFourPLParameters(t *testing.T) {
+	t.Parallel()
+	e := newEnv(t)
+	decode[oapi.Method](t, e.postJSON(t, e.admin, "/v1/methods", map[string]any{"name": "elisa-trend", "model": "4pl",
+		"weighting": "1/y^2", "analytes": []map[string]any{{"name": "cytokine-x", "unit": "ng/mL"}}}), http.StatusCreated)
+	var curves []oapi.Curve
+	for day := range 3 {
+		stds := elisaStandards("cytokine-x")
+		for _, s := range stds {
+			rs := s["responses"].([]float64)
+			scaled := make([]float64, len(rs))
+			for i, v := range rs {
+				scaled[i] = v * (1 + 0.04*float64(day)*v/2.5) // the top rises, the bottom barely moves
+			}
+			s["responses"] = scaled
+		}
+		run := e.run(t, e.admin, runBody("elisa-trend", "plate-reader-9", baseTime.Add(time.Duration(day)*24*time.Hour), stds))
+		curves = append(curves, decode[oapi.Curve](t, e.get(t, e.admin, "/v1/curves/"+run.Curves[0].ID.String()), http.StatusOK))
+	}
+	path := "/v1/trends?instrument=plate-reader-9&analyte=cytokine-x&parameter="
+	for j, name := range []string{"a", "b", "c", "d"} {
+		tr := decode[trendBody](t, e.get(t, e.admin, path+name), http.StatusOK)
+		if len(tr.Points) != 3 {
+			t.Fatalf("%s: %d points", name, len(tr.Points))
+		}
+		for i, p := range tr.Points {
+			if p.CurveID != curves[i].ID.String() || p.Value == nil || *p.Value != curves[i].Coefficients[j] {
+				t.Errorf("%s point %d: %+v, want curve %s value %v", name, i, p, curves[i].ID, curves[i].Coefficients[j])
+			}
+		}
+		if name == "d" && !(*tr.Points[0].Value < *tr.Points[1].Value && *tr.Points[1].Value < *tr.Points[2].Value) {
+			t.Errorf("d does not rise plate to plate: %v %v %v", *tr.Points[0].Value, *tr.Points[1].Value, *tr.Points[2].Value)
+		}
+	}
+	tr := decode[trendBody](t, e.get(t, e.admin, path+"slope"), http.StatusOK)
+	if len(tr.Points) != 3 || tr.Points[0].Value != nil || len(tr.Notes) == 0 {
+		t.Errorf("slope of a 4PL: %+v", tr)
+	}
 }
