@@ -217,8 +217,9 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 	if err != nil {
 		return nil, err
 	}
-	var x, y []float64
-	var pidx []int
+	xy := make([]float64, 0, 2*len(points))
+	x, y := xy[0:0:len(points)], xy[len(points):len(points)]
+	pidx := make([]int, 0, len(points))
 	for i, p := range points {
 		if !Finite(p.X, p.Y) {
 			return nil, inputErr("points["+itoa(i)+"]", "reading is not a finite number")
@@ -319,21 +320,39 @@ func resolveCurveOptions(opt Options) (Options, error) {
 // concentration, in increasing concentration.
 func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
 	// A calibration has few levels: a linear search finds each reading's.
-	var out []*curveLevel
+	// One backing array holds the levels and one their reading indices.
+	store := make([]curveLevel, 0, len(pidx))
+	of := make([]int, len(pidx)) // level of each reading
 	for k, i := range pidx {
 		p := points[i]
-		var l *curveLevel
-		for _, o := range out {
-			if o.x == p.X {
-				l = o
+		li := -1
+		for j := range store {
+			if store[j].x == p.X {
+				li = j
 				break
 			}
 		}
-		if l == nil {
-			l = &curveLevel{label: p.Level, x: p.X, anchor: isAnchor(p.Level)}
-			out = append(out, l)
+		if li < 0 {
+			li = len(store)
+			store = append(store, curveLevel{label: p.Level, x: p.X, anchor: isAnchor(p.Level)})
 		}
-		l.idx = append(l.idx, k)
+		of[k] = li
+	}
+	count := make([]int, len(store))
+	for _, li := range of {
+		count[li]++
+	}
+	idx := make([]int, len(pidx))
+	out := make([]*curveLevel, len(store))
+	at := 0
+	for j := range store {
+		n := count[j]
+		store[j].idx = idx[at : at : at+n]
+		at += n
+		out[j] = &store[j]
+	}
+	for k, li := range of {
+		store[li].idx = append(store[li].idx, k)
 	}
 	slices.SortFunc(out, func(a, b *curveLevel) int { return cmp.Compare(a.x, b.x) })
 	for _, l := range out {
@@ -429,9 +448,14 @@ func estimateTheta(x, y, w []float64, levels []*curveLevel, fit *CurveFit, co Cu
 // are zero).
 func responseFloor(x []float64, fit *CurveFit) float64 {
 	c := curveOf(fit.Model)
+	return floorOf(len(x), func(i int) float64 { return c.Eval(x[i], fit.Coefficients, nil) })
+}
+
+// floorOf is the smallest non-zero |f(i)| over i < n, 1 when all are zero.
+func floorOf(n int, f func(int) float64) float64 {
 	fl := math.Inf(1)
-	for _, v := range x {
-		if a := math.Abs(c.Eval(v, fit.Coefficients, nil)); a > 0 {
+	for i := range n {
+		if a := math.Abs(f(i)); a > 0 {
 			fl = min(fl, a)
 		}
 	}
@@ -452,7 +476,6 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 		ZeroHandling: "responses near zero are weighted as the smallest non-zero |fitted response| (response_floor)",
 		Limits:       Limits{Detail: "not computed: the ICH Q2 slope formulas assume a straight line; the precision profile's working range takes their place for non-linear curves"},
 	}
-	cd.ResponseFloor = responseFloor(x, fit)
 	setLevelFits(levels, fit)
 	var judged []*curveLevel
 	for _, l := range levels {
@@ -470,11 +493,23 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 	r.Levels = len(levels)
 	r.Points = make([]PointResult, len(points))
 	ok := fit.Outcome == Converged
+	// The gradient at each reading, kept from the fitted value's evaluation
+	// for the leverages below.
+	np := len(fit.Coefficients)
+	withLev := ok && fit.Covariance != nil && fit.ResidualSD > 0
+	var grads []float64
+	if withLev {
+		grads = make([]float64, len(points)*np)
+	}
 	for i, p := range points {
 		pr := &r.Points[i]
 		pr.Level, pr.X, pr.Y, pr.Excluded = p.Level, p.X, p.Y, p.Excluded
 		if ok {
-			pr.Fitted = c.Eval(p.X, fit.Coefficients, nil)
+			var g []float64
+			if withLev {
+				g = grads[i*np : i*np+np]
+			}
+			pr.Fitted = c.Eval(p.X, fit.Coefficients, g)
 			pr.Residual = p.Y - pr.Fitted
 			if xb, _, inv := c.invert(p.Y, fit.Coefficients); inv && Finite(xb) {
 				pr.BackCalculated, pr.HasBackCalc = xb, true
@@ -484,24 +519,31 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 			}
 		}
 	}
+	if ok {
+		cd.ResponseFloor = floorOf(len(pidx), func(k int) float64 { return r.Points[pidx[k]].Fitted })
+	} else {
+		cd.ResponseFloor = responseFloor(x, fit)
+	}
 	for k, i := range pidx {
 		wk := 1.0
 		if len(fit.Residuals) == len(pidx) {
-			wk = fit.WeightScale * r.rawWeight(points[i].X, y[k])
+			fx := math.NaN()
+			if ok {
+				fx = r.Points[i].Fitted
+			}
+			wk = fit.WeightScale * r.rawWeightAt(points[i].X, y[k], fx)
 		}
 		r.Points[i].Weight = wk
 		r.Points[i].WeightedResidual = math.Sqrt(wk) * r.Points[i].Residual
 	}
-	if ok && fit.Covariance != nil && fit.ResidualSD > 0 {
+	if withLev {
 		// Leverage hᵢ = wᵢ·gᵢᵀ(JᵀWJ)⁻¹gᵢ (the hat matrix of the linearised
 		// model at the solution, Cov = s²(JᵀWJ)⁻¹) and the internally
 		// studentised residual √wᵢ·rᵢ/(s·√(1 − hᵢ)), as for the line.
-		g := make([]float64, len(fit.Coefficients))
 		s2 := fit.ResidualSD * fit.ResidualSD
 		for _, i := range pidx {
 			pr := &r.Points[i]
-			c.Eval(pr.X, fit.Coefficients, g)
-			h := quadForm(fit.Covariance, g)
+			h := quadForm(fit.Covariance, grads[i*np:i*np+np])
 			pr.Leverage = pr.Weight * h / s2
 			if 1-pr.Leverage > 1e-10 {
 				pr.Studentized = pr.WeightedResidual / (fit.ResidualSD * math.Sqrt(1-pr.Leverage))
@@ -705,13 +747,14 @@ func curveLackOfFitCheck(levels []*curveLevel, points []Point, pidx []int, r *Re
 	return ck
 }
 
-// rawWeight is the raw weight of a reading (or unknown) at concentration x
+// rawWeightAt is the raw weight of a reading (or unknown) at concentration x
 // with response y under the report's weighting, before WeightScale:
 // 1/max(|ŷ(x)|, floor)^(2θ) for power_of_mean and 1/s² (θ from the
 // levels), 1/y² for 1/y² calibrators and 1 unweighted. For 1/s² the
 // calibrators' own weights come from their level SDs; this is the weight
 // of an unknown.
-func (r *Report) rawWeight(x, y float64) float64 {
+// fx is f(x) when known, NaN to evaluate the curve.
+func (r *Report) rawWeightAt(x, y, fx float64) float64 {
 	cd := r.Curve
 	switch r.Weighting {
 	case WeightInvY2:
@@ -720,8 +763,10 @@ func (r *Report) rawWeight(x, y float64) float64 {
 		}
 		return 1 / (cd.ResponseFloor * cd.ResponseFloor)
 	case WeightVarPower, WeightInvS2:
-		c := curveOf(r.Model)
-		return math.Pow(max(math.Abs(c.Eval(x, r.Coefficients, nil)), cd.ResponseFloor), -2*cd.Theta)
+		if math.IsNaN(fx) {
+			fx = curveOf(r.Model).Eval(x, r.Coefficients, nil)
+		}
+		return math.Pow(max(math.Abs(fx), cd.ResponseFloor), -2*cd.Theta)
 	}
 	return 1
 }
@@ -744,11 +789,11 @@ func (r *Report) unknownVarSlope(c calibCurve, x float64, m int, grad []float64)
 
 // varAt is unknownVar given fx = f(x) and grad = ∇βf(x).
 func (r *Report) varAt(c calibCurve, x, fx float64, m int, grad []float64) (v float64) {
-	w0 := r.WeightScale * r.rawWeight(x, fx)
+	w0 := r.WeightScale * r.rawWeightAt(x, fx, fx)
 	if r.Weighting == WeightInvS2 {
 		// Level SDs set the calibrators' scale; the unknown's weight
 		// follows the θ model normalised like them.
-		w0 = r.WeightScale * r.rawWeight(x, fx) * r.s2Norm()
+		w0 = r.WeightScale * r.rawWeightAt(x, fx, fx) * r.s2Norm()
 	}
 	v = r.ResidualSD * r.ResidualSD / (float64(m) * w0)
 	return v + quadForm(r.Covariance, grad)
