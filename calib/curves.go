@@ -189,6 +189,10 @@ func (l logistic) evalBatch(x, lx, beta, f, jac []float64) {
 	f = f[:n]
 	lx = lx[:n]
 	var g [5]float64
+	var ja, jb, jc, jd []float64 // the 4PL's Jacobian columns
+	if jac != nil && !l.five {
+		ja, jb, jc, jd = jac[:n], jac[n:2*n], jac[2*n:3*n], jac[3*n:4*n]
+	}
 	for i, xi := range x {
 		var gi []float64
 		if jac != nil {
@@ -207,7 +211,7 @@ func (l logistic) evalBatch(x, lx, beta, f, jac []float64) {
 			f[i] = d + (a-d)*h
 			if jac != nil {
 				k := (a - d) * h * lg
-				jac[i], jac[n+i], jac[2*n+i], jac[3*n+i] = h, -k*u, k*b/c, lg
+				ja[i], jb[i], jc[i], jd[i] = h, -k*u, k*b/c, lg
 			}
 			continue
 		default:

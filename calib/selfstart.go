@@ -225,12 +225,12 @@ func refineAsymptotes(x, y, w, s []float64, fixed func(int) (float64, bool)) {
 	if _, ok := fixed(3); ok {
 		return
 	}
-	b, c := s[1], s[2]
+	b, lc := s[1], math.Log(s[2])
 	var shh, sho, soo, shy, soy float64
 	for i, xi := range x {
 		h := 1.0
 		if xi > 0 {
-			h = 1 / (1 + math.Exp(b*(math.Log(xi)-math.Log(c))))
+			h = 1 / (1 + math.Exp(b*(math.Log(xi)-lc)))
 		}
 		wi := 1.0
 		if w != nil {
