@@ -212,8 +212,9 @@ func bounds(opt NLLSOptions, j int) (lo, hi float64) {
 // batchCurve is a Curve that evaluates every reading in one call, given
 // lx[i] = ln x[i] (−Inf at 0, NaN below), which the solver computes once:
 // f[i] = f(x[i]; β) and, when jac is not nil, the gradients column-major:
-// ∂f/∂βⱼ at x[i] in jac[j*n+i]. The calibration models implement it, so that what
-// depends only on β (ln c of the logistic) is computed once per pass.
+// ∂f/∂βⱼ at x[i] in jac[j*n+i]. The logistic models implement it, so that
+// what depends only on β (ln c) is computed once per pass; other curves
+// are evaluated reading by reading through Eval.
 type batchCurve interface {
 	evalBatch(x, lx, beta, f, jac []float64)
 }
