@@ -251,7 +251,8 @@ func (l logistic) evalSlope(x float64, beta, grad []float64) (float64, float64) 
 }
 
 // invert: with u = (y − d)/(a − d) in (0, 1),
-// x = c·(u^(−1/g) − 1)^(1/b), computed as c·exp(ln(expm1(−ln(u)/g))/b).
+// x = c·(u^(−1/g) − 1)^(1/b), computed as c·exp(ln(expm1(−ln(u)/g))/b)
+// (for the 4PL, c·exp(ln((a − y)/(y − d))/b)).
 // A response outside the open interval between a and d has no inverse.
 func (l logistic) invert(y float64, beta []float64) (float64, string, bool) {
 	a, b, c, d := beta[0], beta[1], beta[2], beta[3]
@@ -266,8 +267,14 @@ func (l logistic) invert(y float64, beta []float64) (float64, string, bool) {
 	case !(y < hi):
 		return 0, FlagAboveAsymptote, false
 	}
-	u := (y - d) / (a - d)
-	e := math.Expm1(-math.Log(u) / g)
+	// e = u^(−1/g) − 1; for the 4PL (g = 1) that is (1 − u)/u = (a − y)/(y − d),
+	// one division instead of a logarithm and an expm1.
+	var e float64
+	if l.five {
+		e = math.Expm1(-math.Log((y-d)/(a-d)) / g)
+	} else {
+		e = (a - y) / (y - d)
+	}
 	x := c * math.Exp(math.Log(e)/b)
 	if !(x > 0) || math.IsInf(x, 0) {
 		// The response is so close to an asymptote that x under- or
