@@ -176,6 +176,12 @@ func nonlinearOut(cd *calib.CurveDetails) *oapi.CurveNonlinear {
 		Criterion: cd.Criterion, Iterations: cd.Iterations, Theta: cd.Theta, ThetaMethod: cd.ThetaMethod,
 		Anchors: nonNilS(cd.Anchors), LogX: cd.LogX, ProfileLimitPct: cd.ProfileLimitPct,
 		Profile: make([]oapi.ProfilePoint, len(cd.Profile))}
+	if cd.Fixed != nil {
+		out.Fixed = &cd.Fixed
+	}
+	if cd.Start != nil {
+		out.Start = &cd.Start
+	}
 	for i, p := range cd.Profile {
 		out.Profile[i].X = p.X
 		if p.OK {

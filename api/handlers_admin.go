@@ -37,6 +37,9 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 	if b.Confidence != nil {
 		in.Confidence = float64(*b.Confidence)
 	}
+	if c := b.CurveParameters; c != nil {
+		in.Curve = calib.CurveParameters{Start: coefficientsFrom(c.Start), Fixed: coefficientsFrom(c.Fixed)}
+	}
 	seen := map[string]bool{}
 	for i, a := range b.Analytes {
 		if seen[string(a.Name)] {
@@ -160,11 +163,12 @@ func methodOut(m *lab.Method) oapi.Method {
 		Weighting: oapi.Weighting(m.Weighting),
 		WeightingOptions: oapi.WeightingOptions{MinReplicates: m.Weights.MinReplicates,
 			LimitSigma: oapi.SigmaBasis(m.Weights.LimitSigma)},
-		Confidence:  m.Confidence,
-		CreatedAt:   oapi.NewTimestamp(m.CreatedAt),
-		Actor:       m.CreatedBy,
-		Description: m.Description,
-		Analytes:    make([]oapi.Analyte, 0, len(m.Analytes)),
+		CurveParameters: curveParametersOut(m.Curve),
+		Confidence:      m.Confidence,
+		CreatedAt:       oapi.NewTimestamp(m.CreatedAt),
+		Actor:           m.CreatedBy,
+		Description:     m.Description,
+		Analytes:        make([]oapi.Analyte, 0, len(m.Analytes)),
 		Acceptance: oapi.AcceptancePolicy{
 			BackCalcLowTolerancePct:  pol.BackCalcLowTolerancePct,
 			BackCalcMinPassFraction:  pol.BackCalcMinPassFraction,
@@ -254,4 +258,43 @@ func mustPrincipal(ctx context.Context) lab.Principal {
 		panic(newProblem(http.StatusUnauthorized, "no principal on an authenticated route"))
 	}
 	return p
+}
+
+// curveParametersOut is a method's curve parameters, empty objects when it
+// names none.
+func curveParametersOut(c calib.CurveParameters) oapi.CurveParameters {
+	return oapi.CurveParameters{Start: coefficientsOut(c.Start), Fixed: coefficientsOut(c.Fixed)}
+}
+
+// coefficientFields are the named coefficients of oapi.CurveCoefficients.
+func coefficientFields(c *oapi.CurveCoefficients) map[string]**float64 {
+	return map[string]**float64{"a": &c.A, "b": &c.B, "c": &c.C, "d": &c.D, "g": &c.G, "y0": &c.Y0}
+}
+
+// coefficientsFrom is the map of the coefficients c names (nil for none).
+func coefficientsFrom(c *oapi.CurveCoefficients) map[string]float64 {
+	if c == nil {
+		return nil
+	}
+	var out map[string]float64
+	for name, f := range coefficientFields(c) {
+		if *f != nil {
+			if out == nil {
+				out = map[string]float64{}
+			}
+			out[name] = **f
+		}
+	}
+	return out
+}
+
+// coefficientsOut is coefficientsFrom's inverse (an empty object for none).
+func coefficientsOut(m map[string]float64) *oapi.CurveCoefficients {
+	var c oapi.CurveCoefficients
+	for name, f := range coefficientFields(&c) {
+		if v, ok := m[name]; ok {
+			*f = &v
+		}
+	}
+	return &c
 }

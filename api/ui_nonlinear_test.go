@@ -1,7 +1,6 @@
 package api_test
 
 import (
-	"fmt"
 	"net/http"
 	"strings"
 	"testing"
@@ -16,13 +15,7 @@ func TestUIFourPLCurvePage(t *testing.T) {
 	e := newUIEnv(t, false)
 	e.api(t, e.admin, http.MethodPost, "/v1/methods", map[string]any{"name": "ui-4pl", "model": "4pl", "weighting": "power_of_mean",
 		"analytes": []map[string]any{{"name": "marker", "unit": "ng/mL"}}}, http.StatusCreated, nil)
-	xs := []float64{0.5, 1, 2.5, 5, 10, 25, 50, 100}
-	ys := [][]float64{{0.081, 0.077}, {0.118, 0.124}, {0.236, 0.229}, {0.432, 0.447},
-		{0.806, 0.781}, {1.542, 1.571}, {2.118, 2.071}, {2.452, 2.497}}
-	var stds []map[string]any
-	for i, x := range xs {
-		stds = append(stds, map[string]any{"analyte": "marker", "level": fmt.Sprintf("C%d", i+1), "concentration": x, "responses": ys[i]})
-	}
+	stds := elisaStandards("marker")
 	var run struct {
 		Curves []struct {
 			ID string `json:"id"`

@@ -72,13 +72,16 @@ func FitCurve(x, y, w []float64, opt CurveOptions) (*CurveFit, error) {
 	if err := checkCurveData(x, y, w); err != nil {
 		return nil, err
 	}
-	for name, v := range map[string][]float64{"options.start": opt.Start, "options.fixed": opt.Fixed} {
-		if v != nil && len(v) != p {
-			return nil, inputErr(name, "%d values for the %d coefficients of %s", len(v), p, opt.Model)
+	for _, o := range [...]struct {
+		name string
+		v    []float64
+	}{{"options.start", opt.Start}, {"options.fixed", opt.Fixed}} {
+		if o.v != nil && len(o.v) != p {
+			return nil, inputErr(o.name, "%d values for the %d coefficients of %s", len(o.v), p, opt.Model)
 		}
-		for j := range v {
-			if math.IsInf(v[j], 0) {
-				return nil, inputErr(name, "coefficient %d is infinite", j)
+		for j := range o.v {
+			if math.IsInf(o.v[j], 0) {
+				return nil, inputErr(o.name, "coefficient %d is infinite", j)
 			}
 		}
 	}

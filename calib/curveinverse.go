@@ -41,11 +41,16 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 		pr.StandardError = se * pr.Dilution
 	}
 	t := studentT(1-(1-confidence)/2, r.DF)
-	inside := func(x float64) bool {
+	// gap(x) ≥ 0 ⇔ ȳ0 lies inside the band at x (−Inf where the band is
+	// not finite).
+	gap := func(x float64) float64 {
 		fx, v := r.unknownVar(c, x, m, grad)
-		return Finite(fx, v) && math.Abs(fx-y0) <= t*math.Sqrt(v)
+		if !Finite(fx, v) {
+			return math.Inf(-1)
+		}
+		return t*math.Sqrt(v) - math.Abs(fx-y0)
 	}
-	if !inside(x0) {
+	if !(gap(x0) >= 0) {
 		// Rounding at an extreme x̂0: no band to invert.
 		pr.Flags = append(pr.Flags, FlagUnbounded)
 		return nil
@@ -56,8 +61,8 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 	if rel := t * se / x0; Finite(rel) {
 		step = 1 + min(max(0.5*rel, 0.02), 1)
 	}
-	lo := r.bandEdge(inside, x0, -1, step)
-	hi := r.bandEdge(inside, x0, +1, step)
+	lo := r.bandEdge(gap, x0, -1, step)
+	hi := r.bandEdge(gap, x0, +1, step)
 	pr.Interval.Low = lo * pr.Dilution
 	if math.IsInf(hi, 1) {
 		pr.Interval.HighOpen = true
@@ -69,11 +74,14 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 	return nil
 }
 
-// bandEdge walks from x0 (inside the band) in direction dir (−1 down, +1
-// up) by factors of step and returns the last x inside, refined by
-// bisection in log x to 1e-13 relative; +Inf going up and 0 going down
-// when the band never closes.
-func (r *Report) bandEdge(inside func(float64) bool, x0 float64, dir int, step float64) float64 {
+// bandEdge walks from x0 (inside the band, gap ≥ 0) in direction dir (−1
+// down, +1 up) by factors of step and returns the last x inside, refined
+// in log x to 1e-13 relative by regula falsi with the Illinois
+// modification (which converges superlinearly on the smooth gap and moves
+// both ends), bisecting when an interpolated point is not finite or not
+// inside the bracket; +Inf going up and 0 going down when the band never
+// closes.
+func (r *Report) bandEdge(gap func(float64) float64, x0 float64, dir int, step float64) float64 {
 	lim := r.Range.High * 1e6
 	if dir < 0 {
 		lim = r.Range.Low * 1e-6
@@ -82,6 +90,8 @@ func (r *Report) bandEdge(inside func(float64) bool, x0 float64, dir int, step f
 		}
 	}
 	in, x := x0, x0
+	gin := gap(x0)
+	var gout float64
 	f := math.Pow(step, float64(dir))
 	for range 4000 {
 		x *= f
@@ -89,32 +99,74 @@ func (r *Report) bandEdge(inside func(float64) bool, x0 float64, dir int, step f
 			if dir > 0 {
 				return math.Inf(1)
 			}
-			if inside(0) {
+			if gap(0) >= 0 {
 				return 0
 			}
 			x = 0
 			break
 		}
-		if !inside(x) {
+		gout = gap(x)
+		if !(gout >= 0) {
 			break
 		}
-		in = x
+		in, gin = x, gout
 	}
 	out := x
-	for range 200 {
-		if out > 0 && math.Abs(out-in) <= 1e-13*in {
+	if out == 0 {
+		// The band closes between 0 and in: bisect towards 0 in x
+		// until a point outside has x > 0, then refine in log x.
+		for range 200 {
+			mid := in / 2
+			if mid == 0 {
+				return in
+			}
+			g := gap(mid)
+			if g >= 0 {
+				in, gin = mid, g
+				continue
+			}
+			out, gout = mid, g
 			break
 		}
-		var mid float64
 		if out == 0 {
-			mid = in / 2
-		} else {
-			mid = math.Sqrt(in * out)
+			return in
 		}
-		if inside(mid) {
-			in = mid
+	}
+	// Regula falsi in u = ln x on [in, out], gap(in) ≥ 0 > gap(out). An
+	// infinite gap outside is replaced by bisection.
+	ui, uo := math.Log(in), math.Log(out)
+	side := 0
+	for range 200 {
+		if math.Abs(out-in) <= 1e-13*in {
+			break
+		}
+		um := 0.5 * (ui + uo)
+		if Finite(gin, gout) && gin != gout {
+			if u := ui + (uo-ui)*gin/(gin-gout); u > min(ui, uo) && u < max(ui, uo) {
+				um = u
+			}
+		}
+		xm := math.Exp(um)
+		if !(xm > min(in, out) && xm < max(in, out)) {
+			xm = math.Sqrt(in * out)
+			um = math.Log(xm)
+			if !(xm > min(in, out) && xm < max(in, out)) {
+				break
+			}
+		}
+		g := gap(xm)
+		if g >= 0 {
+			in, ui, gin = xm, um, g
+			if side == -1 {
+				gout /= 2 // Illinois: the end that stays loses half its weight
+			}
+			side = -1
 		} else {
-			out = mid
+			out, uo, gout = xm, um, g
+			if side == 1 {
+				gin /= 2
+			}
+			side = 1
 		}
 	}
 	return in
@@ -133,12 +185,7 @@ func (r *Report) curveMeanBand(c calibCurve, x float64) (float64, bool) {
 	}
 	grad := make([]float64, p)
 	c.Eval(x, r.Coefficients, grad)
-	var v float64
-	for j := range grad {
-		for k := range grad {
-			v += grad[j] * r.Covariance[j][k] * grad[k]
-		}
-	}
+	v := quadForm(r.Covariance, grad)
 	h := t * math.Sqrt(max(v, 0))
 	return h, Finite(h)
 }

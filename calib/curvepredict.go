@@ -71,12 +71,7 @@ func (f *CurveFit) Predict(responses []float64, w0, dilution, confidence float64
 	pr.Flags = f.Range.appendFlags(pr.Flags, x0)
 	grad := make([]float64, len(beta))
 	c.Eval(x0, beta, grad)
-	v := f.ResidualSD * f.ResidualSD / (float64(m) * w0 * f.WeightScale)
-	for j := range grad {
-		for k := range grad {
-			v += grad[j] * f.Covariance[j][k] * grad[k]
-		}
-	}
+	v := f.ResidualSD*f.ResidualSD/(float64(m)*w0*f.WeightScale) + quadForm(f.Covariance, grad)
 	sens := c.slope(x0, beta)
 	se := math.Sqrt(v) / math.Abs(sens)
 	if !Finite(se) || se == 0 && v > 0 {

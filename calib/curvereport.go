@@ -1,9 +1,10 @@
 package calib
 
 import (
+	"cmp"
+	"maps"
 	"math"
 	"slices"
-	"sort"
 	"strings"
 
 	"gonum.org/v1/gonum/stat/distuv"
@@ -86,6 +87,76 @@ func Equation(m Model) string {
 	return ""
 }
 
+// CurveParameters names coefficients of a non-linear model (see
+// ParameterNames) whose starting value replaces the self-started one
+// (Start) or that are held at a value and not fitted (Fixed; for example a
+// 4PL's lower asymptote a fixed to the blank's response). A fixed
+// coefficient does not count against the degrees of freedom and has no
+// standard error.
+type CurveParameters struct {
+	Start map[string]float64 `json:"start,omitempty"`
+	Fixed map[string]float64 `json:"fixed,omitempty"`
+}
+
+// IsZero reports whether p names no coefficient.
+func (p CurveParameters) IsZero() bool { return len(p.Start) == 0 && len(p.Fixed) == 0 }
+
+// Equal reports whether p and q name the same values.
+func (p CurveParameters) Equal(q CurveParameters) bool {
+	return maps.Equal(p.Start, q.Start) && maps.Equal(p.Fixed, q.Fixed)
+}
+
+// Check validates p for model m: only a non-linear model takes
+// parameters, each name is one of the model's, each value finite, and a
+// coefficient is not both started and fixed. The error's field is
+// "options.curve", or "options.curve.start.NAME" / "options.curve.fixed.NAME".
+func (p CurveParameters) Check(m Model) error {
+	if p.IsZero() {
+		return nil
+	}
+	names := ParameterNames(m)
+	if names == nil {
+		return inputErr("options.curve", "the model %s has no non-linear coefficients to start or fix", m)
+	}
+	for _, g := range [...]struct {
+		field string
+		v     map[string]float64
+	}{{"start", p.Start}, {"fixed", p.Fixed}} {
+		for name, v := range g.v {
+			if !slices.Contains(names, name) {
+				return inputErr("options.curve."+g.field+"."+name, "%q is not a coefficient of %s (%s)", name, m, strings.Join(names, ", "))
+			}
+			if !Finite(v) {
+				return inputErr("options.curve."+g.field+"."+name, "the value is not a finite number")
+			}
+			if _, both := p.Fixed[name]; both && g.field == "start" {
+				return inputErr("options.curve."+g.field+"."+name, "%q is both started and fixed", name)
+			}
+		}
+	}
+	return nil
+}
+
+// arrays returns p as CurveOptions' Start and Fixed (NaN where unnamed),
+// nil when p names nothing of that kind.
+func (p CurveParameters) arrays(m Model) (start, fixed []float64) {
+	names := ParameterNames(m)
+	conv := func(v map[string]float64) []float64 {
+		if len(v) == 0 {
+			return nil
+		}
+		out := make([]float64, len(names))
+		for j, n := range names {
+			out[j] = math.NaN()
+			if x, ok := v[n]; ok {
+				out[j] = x
+			}
+		}
+		return out
+	}
+	return conv(p.Start), conv(p.Fixed)
+}
+
 // CurveDetails is what a Report of a non-linear model adds (nil for the
 // least-squares models).
 type CurveDetails struct {
@@ -146,8 +217,9 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 	if err != nil {
 		return nil, err
 	}
-	var x, y []float64
-	var pidx []int
+	xy := make([]float64, 0, 2*len(points))
+	x, y := xy[0:0:len(points)], xy[len(points):len(points)]
+	pidx := make([]int, 0, len(points))
 	for i, p := range points {
 		if !Finite(p.X, p.Y) {
 			return nil, inputErr("points["+itoa(i)+"]", "reading is not a finite number")
@@ -172,9 +244,11 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 	}
 	w := make([]float64, len(x))
 	var fit *CurveFit
+	co := CurveOptions{Model: opt.Model}
+	co.Start, co.Fixed = opt.Curve.arrays(opt.Model)
 	switch opt.Weighting {
 	case WeightNone:
-		fit, err = FitCurve(x, y, nil, CurveOptions{Model: opt.Model})
+		fit, err = FitCurve(x, y, nil, co)
 		cd.ThetaMethod = "unweighted: θ = 0"
 	case WeightInvY2:
 		for i, v := range y {
@@ -183,7 +257,7 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 				return nil, inputErr("points", "1/y² weighting: reading %d has response 0", pidx[i])
 			}
 		}
-		fit, err = FitCurve(x, y, w, CurveOptions{Model: opt.Model})
+		fit, err = FitCurve(x, y, w, co)
 		cd.Theta, cd.ThetaMethod = 1, "1/y²: θ = 1 (an unknown is weighted 1/ŷ² at its concentration)"
 	case WeightInvS2:
 		floor := math.Inf(1)
@@ -204,7 +278,7 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 				w[k] = 1 / (s * s)
 			}
 		}
-		fit, err = FitCurve(x, y, w, CurveOptions{Model: opt.Model})
+		fit, err = FitCurve(x, y, w, co)
 		if err == nil && fit.Outcome == Converged {
 			setLevelFits(levels, fit)
 			th, ok := thetaFromReplicates(levels)
@@ -215,9 +289,9 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 			}
 		}
 	case WeightVarPower:
-		fit, err = FitCurve(x, y, nil, CurveOptions{Model: opt.Model})
+		fit, err = FitCurve(x, y, nil, co)
 		if err == nil && fit.Outcome == Converged {
-			fit, cd.Theta, cd.ThetaIterations, cd.ThetaMethod, err = estimateTheta(x, y, w, levels, fit, opt.Model)
+			fit, cd.Theta, cd.ThetaIterations, cd.ThetaMethod, err = estimateTheta(x, y, w, levels, fit, co)
 		}
 	}
 	if err != nil {
@@ -230,6 +304,9 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 
 // resolveCurveOptions validates opt for a non-linear model.
 func resolveCurveOptions(opt Options) (Options, error) {
+	if err := opt.Curve.Check(opt.Model); err != nil {
+		return opt, err
+	}
 	if opt.Weighting == "" {
 		opt.Weighting = WeightNone
 	}
@@ -242,19 +319,42 @@ func resolveCurveOptions(opt Options) (Options, error) {
 // groupCurveLevels groups the fitted readings (pidx into points) by
 // concentration, in increasing concentration.
 func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
-	byX := map[float64]*curveLevel{}
-	var out []*curveLevel
+	// A calibration has few levels: a linear search finds each reading's.
+	// One backing array holds the levels and one their reading indices.
+	store := make([]curveLevel, 0, len(pidx))
+	of := make([]int, len(pidx)) // level of each reading
 	for k, i := range pidx {
 		p := points[i]
-		l := byX[p.X]
-		if l == nil {
-			l = &curveLevel{label: p.Level, x: p.X, anchor: strings.HasPrefix(strings.ToLower(p.Level), AnchorPrefix)}
-			byX[p.X] = l
-			out = append(out, l)
+		li := -1
+		for j := range store {
+			if store[j].x == p.X {
+				li = j
+				break
+			}
 		}
-		l.idx = append(l.idx, k)
+		if li < 0 {
+			li = len(store)
+			store = append(store, curveLevel{label: p.Level, x: p.X, anchor: isAnchor(p.Level)})
+		}
+		of[k] = li
 	}
-	sort.Slice(out, func(i, j int) bool { return out[i].x < out[j].x })
+	count := make([]int, len(store))
+	for _, li := range of {
+		count[li]++
+	}
+	idx := make([]int, len(pidx))
+	out := make([]*curveLevel, len(store))
+	at := 0
+	for j := range store {
+		n := count[j]
+		store[j].idx = idx[at : at : at+n]
+		at += n
+		out[j] = &store[j]
+	}
+	for k, li := range of {
+		store[li].idx = append(store[li].idx, k)
+	}
+	slices.SortFunc(out, func(a, b *curveLevel) int { return cmp.Compare(a.x, b.x) })
 	for _, l := range out {
 		var s, ss float64
 		for _, k := range l.idx {
@@ -270,6 +370,12 @@ func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
 		}
 	}
 	return out
+}
+
+// isAnchor reports whether a level label starts with AnchorPrefix, in any
+// case.
+func isAnchor(label string) bool {
+	return len(label) >= len(AnchorPrefix) && strings.EqualFold(label[:len(AnchorPrefix)], AnchorPrefix)
 }
 
 // setLevelFits sets each level's mean fitted response.
@@ -306,8 +412,8 @@ func thetaFromReplicates(levels []*curveLevel) (float64, bool) {
 // the curve is refitted from the previous coefficients, and so on until θ
 // moves by less than 1e-4 (at most 20 rounds). The level SDs are the
 // replicates' own and do not change; the fitted means do.
-func estimateTheta(x, y, w []float64, levels []*curveLevel, fit *CurveFit, m Model) (*CurveFit, float64, int, string, error) {
-	c := curveOf(m)
+func estimateTheta(x, y, w []float64, levels []*curveLevel, fit *CurveFit, co CurveOptions) (*CurveFit, float64, int, string, error) {
+	c := curveOf(co.Model)
 	theta, rounds := 0.0, 0
 	const how = "power_of_mean: Var(y) = σ²·|ŷ|^(2θ); θ is the least-squares slope of ln(level SD) on ln|ŷ| over the calibrator levels with replicates (clamped to [0, 2]), iterated with a weighted refit until θ moves by less than 1e-4"
 	for rounds < 20 {
@@ -321,7 +427,7 @@ func estimateTheta(x, y, w []float64, levels []*curveLevel, fit *CurveFit, m Mod
 		for i := range x {
 			w[i] = math.Pow(max(math.Abs(c.Eval(x[i], fit.Coefficients, nil)), floor), -2*th)
 		}
-		nf, err := FitCurve(x, y, w, CurveOptions{Model: m, Start: fit.Coefficients})
+		nf, err := FitCurve(x, y, w, CurveOptions{Model: co.Model, Start: fit.Coefficients, Fixed: co.Fixed})
 		if err != nil {
 			return nil, 0, rounds, how, err
 		}
@@ -342,9 +448,14 @@ func estimateTheta(x, y, w []float64, levels []*curveLevel, fit *CurveFit, m Mod
 // are zero).
 func responseFloor(x []float64, fit *CurveFit) float64 {
 	c := curveOf(fit.Model)
+	return floorOf(len(x), func(i int) float64 { return c.Eval(x[i], fit.Coefficients, nil) })
+}
+
+// floorOf is the smallest non-zero |f(i)| over i < n, 1 when all are zero.
+func floorOf(n int, f func(int) float64) float64 {
 	fl := math.Inf(1)
-	for _, v := range x {
-		if a := math.Abs(c.Eval(v, fit.Coefficients, nil)); a > 0 {
+	for i := range n {
+		if a := math.Abs(f(i)); a > 0 {
 			fl = min(fl, a)
 		}
 	}
@@ -365,7 +476,6 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 		ZeroHandling: "responses near zero are weighted as the smallest non-zero |fitted response| (response_floor)",
 		Limits:       Limits{Detail: "not computed: the ICH Q2 slope formulas assume a straight line; the precision profile's working range takes their place for non-linear curves"},
 	}
-	cd.ResponseFloor = responseFloor(x, fit)
 	setLevelFits(levels, fit)
 	var judged []*curveLevel
 	for _, l := range levels {
@@ -383,11 +493,23 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 	r.Levels = len(levels)
 	r.Points = make([]PointResult, len(points))
 	ok := fit.Outcome == Converged
+	// The gradient at each reading, kept from the fitted value's evaluation
+	// for the leverages below.
+	np := len(fit.Coefficients)
+	withLev := ok && fit.Covariance != nil && fit.ResidualSD > 0
+	var grads []float64
+	if withLev {
+		grads = make([]float64, len(points)*np)
+	}
 	for i, p := range points {
 		pr := &r.Points[i]
 		pr.Level, pr.X, pr.Y, pr.Excluded = p.Level, p.X, p.Y, p.Excluded
 		if ok {
-			pr.Fitted = c.Eval(p.X, fit.Coefficients, nil)
+			var g []float64
+			if withLev {
+				g = grads[i*np : i*np+np]
+			}
+			pr.Fitted = c.Eval(p.X, fit.Coefficients, g)
 			pr.Residual = p.Y - pr.Fitted
 			if xb, _, inv := c.invert(p.Y, fit.Coefficients); inv && Finite(xb) {
 				pr.BackCalculated, pr.HasBackCalc = xb, true
@@ -397,29 +519,31 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 			}
 		}
 	}
+	if ok {
+		cd.ResponseFloor = floorOf(len(pidx), func(k int) float64 { return r.Points[pidx[k]].Fitted })
+	} else {
+		cd.ResponseFloor = responseFloor(x, fit)
+	}
 	for k, i := range pidx {
 		wk := 1.0
 		if len(fit.Residuals) == len(pidx) {
-			wk = fit.WeightScale * r.rawWeight(points[i].X, y[k])
+			fx := math.NaN()
+			if ok {
+				fx = r.Points[i].Fitted
+			}
+			wk = fit.WeightScale * r.rawWeightAt(points[i].X, y[k], fx)
 		}
 		r.Points[i].Weight = wk
 		r.Points[i].WeightedResidual = math.Sqrt(wk) * r.Points[i].Residual
 	}
-	if ok && fit.Covariance != nil && fit.ResidualSD > 0 {
+	if withLev {
 		// Leverage hᵢ = wᵢ·gᵢᵀ(JᵀWJ)⁻¹gᵢ (the hat matrix of the linearised
 		// model at the solution, Cov = s²(JᵀWJ)⁻¹) and the internally
 		// studentised residual √wᵢ·rᵢ/(s·√(1 − hᵢ)), as for the line.
-		g := make([]float64, len(fit.Coefficients))
 		s2 := fit.ResidualSD * fit.ResidualSD
 		for _, i := range pidx {
 			pr := &r.Points[i]
-			c.Eval(pr.X, fit.Coefficients, g)
-			var h float64
-			for j := range g {
-				for k := range g {
-					h += g[j] * fit.Covariance[j][k] * g[k]
-				}
-			}
+			h := quadForm(fit.Covariance, grads[i*np:i*np+np])
 			pr.Leverage = pr.Weight * h / s2
 			if 1-pr.Leverage > 1e-10 {
 				pr.Studentized = pr.WeightedResidual / (fit.ResidualSD * math.Sqrt(1-pr.Leverage))
@@ -623,13 +747,14 @@ func curveLackOfFitCheck(levels []*curveLevel, points []Point, pidx []int, r *Re
 	return ck
 }
 
-// rawWeight is the raw weight of a reading (or unknown) at concentration x
+// rawWeightAt is the raw weight of a reading (or unknown) at concentration x
 // with response y under the report's weighting, before WeightScale:
 // 1/max(|ŷ(x)|, floor)^(2θ) for power_of_mean and 1/s² (θ from the
 // levels), 1/y² for 1/y² calibrators and 1 unweighted. For 1/s² the
 // calibrators' own weights come from their level SDs; this is the weight
 // of an unknown.
-func (r *Report) rawWeight(x, y float64) float64 {
+// fx is f(x) when known, NaN to evaluate the curve.
+func (r *Report) rawWeightAt(x, y, fx float64) float64 {
 	cd := r.Curve
 	switch r.Weighting {
 	case WeightInvY2:
@@ -638,8 +763,10 @@ func (r *Report) rawWeight(x, y float64) float64 {
 		}
 		return 1 / (cd.ResponseFloor * cd.ResponseFloor)
 	case WeightVarPower, WeightInvS2:
-		c := curveOf(r.Model)
-		return math.Pow(max(math.Abs(c.Eval(x, r.Coefficients, nil)), cd.ResponseFloor), -2*cd.Theta)
+		if math.IsNaN(fx) {
+			fx = curveOf(r.Model).Eval(x, r.Coefficients, nil)
+		}
+		return math.Pow(max(math.Abs(fx), cd.ResponseFloor), -2*cd.Theta)
 	}
 	return 1
 }
@@ -650,19 +777,40 @@ func (r *Report) rawWeight(x, y float64) float64 {
 // is reused.
 func (r *Report) unknownVar(c calibCurve, x float64, m int, grad []float64) (fx, v float64) {
 	fx = c.Eval(x, r.Coefficients, grad)
-	w0 := r.WeightScale * r.rawWeight(x, fx)
+	return fx, r.varAt(c, x, fx, m, grad)
+}
+
+// unknownVarSlope is unknownVar that also returns the curve's slope at x,
+// from the same evaluation of the curve.
+func (r *Report) unknownVarSlope(c calibCurve, x float64, m int, grad []float64) (fx, v, slope float64) {
+	fx, slope = c.evalSlope(x, r.Coefficients, grad)
+	return fx, r.varAt(c, x, fx, m, grad), slope
+}
+
+// varAt is unknownVar given fx = f(x) and grad = ∇βf(x).
+func (r *Report) varAt(c calibCurve, x, fx float64, m int, grad []float64) (v float64) {
+	w0 := r.WeightScale * r.rawWeightAt(x, fx, fx)
 	if r.Weighting == WeightInvS2 {
 		// Level SDs set the calibrators' scale; the unknown's weight
 		// follows the θ model normalised like them.
-		w0 = r.WeightScale * r.rawWeight(x, fx) * r.s2Norm()
+		w0 = r.WeightScale * r.rawWeightAt(x, fx, fx) * r.s2Norm()
 	}
 	v = r.ResidualSD * r.ResidualSD / (float64(m) * w0)
-	for j := range grad {
-		for k := range grad {
-			v += grad[j] * r.Covariance[j][k] * grad[k]
+	return v + quadForm(r.Covariance, grad)
+}
+
+// quadForm is gᵀ·C·g.
+func quadForm(c [][]float64, g []float64) float64 {
+	var v float64
+	for j, gj := range g {
+		row := c[j][:len(g)]
+		var s float64
+		for k, gk := range g {
+			s += row[k] * gk
 		}
+		v += gj * s
 	}
-	return fx, v
+	return v
 }
 
 // s2Norm brings the θ model's raw weights to the calibrators' 1/s² scale:
@@ -704,8 +852,8 @@ func (r *Report) profile(levels []*curveLevel, cd *CurveDetails) {
 		if i == n-1 {
 			x = r.Range.High
 		}
-		_, v := r.unknownVar(c, x, cd.Replicates, grad)
-		se := math.Sqrt(v) / math.Abs(c.slope(x, r.Coefficients))
+		_, v, sl := r.unknownVarSlope(c, x, cd.Replicates, grad)
+		se := math.Sqrt(v) / math.Abs(sl)
 		pp := ProfilePoint{X: x}
 		if Finite(se) {
 			pp.CVPct, pp.OK = 100*se/x, true

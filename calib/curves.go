@@ -47,6 +47,8 @@ type calibCurve interface {
 	Curve
 	// slope returns ∂f/∂x at x.
 	slope(x float64, beta []float64) float64
+	// evalSlope returns Eval(x, beta, grad) and slope(x, beta) together.
+	evalSlope(x float64, beta, grad []float64) (float64, float64)
 	// invert returns x with f(x; β) = y; when there is none, ok is false
 	// and flag says why.
 	invert(y float64, beta []float64) (x float64, flag string, ok bool)
@@ -87,50 +89,138 @@ func softplus(t float64) float64 {
 	return math.Log1p(math.Exp(t))
 }
 
-// parts returns, for the logistic at x > 0, t = b·ln(x/c), h = (1 + eᵗ)^(−g)
-// and L = eᵗ/(1 + eᵗ), computed without overflow.
-func (l logistic) parts(x float64, beta []float64) (t, sp, h, lg, g float64) {
-	g = 1
-	if l.five {
-		g = beta[4]
+// logU returns ln(x/c) for x, c > 0: one logarithm of the ratio, or
+// ln x − ln c when the ratio under- or overflows.
+func logU(x, c float64) float64 {
+	if r := x / c; r > 0 && r <= math.MaxFloat64 {
+		return math.Log(r)
 	}
-	t = beta[1] * (math.Log(x) - math.Log(beta[2]))
-	sp = softplus(t)
-	h = math.Exp(-g * sp)
-	lg = 1 / (1 + math.Exp(-t))
-	return t, sp, h, lg, g
+	return math.Log(x) - math.Log(c)
 }
 
-// Eval: with t, h and L as in parts,
+// core returns, for the logistic at t = b·ln(x/c), h = (1 + eᵗ)^(−g),
+// L = eᵗ/(1 + eᵗ), 1 − h and sp = ln(1 + eᵗ) (sp only for the 5PL),
+// without overflow and from one exponential for the 4PL (where 1 − h = L).
+func (l logistic) core(t, g float64) (h, lg, omh, sp float64) {
+	h, lg, e := core4(t)
+	if !l.five {
+		return h, lg, lg, 0
+	}
+	sp = math.Log1p(e)
+	if t > 0 {
+		sp += t
+	}
+	return math.Exp(-g * sp), lg, -math.Expm1(-g * sp), sp
+}
+
+// core4 returns h = 1/(1 + eᵗ) and L = eᵗ/(1 + eᵗ) = 1 − h from one
+// exponential, e = e^(−|t|), small enough to be inlined.
+func core4(t float64) (h, lg, e float64) {
+	e = math.Exp(-math.Abs(t))
+	q := 1 / (1 + e)
+	if t > 0 {
+		return e * q, q, e
+	}
+	return q, e * q, e
+}
+
+// g returns the asymmetry (1 for the 4PL).
+func (l logistic) g(beta []float64) float64 {
+	if l.five {
+		return beta[4]
+	}
+	return 1
+}
+
+// Eval: with t = b·ln(x/c), h and L as in core,
 //
 //	∂f/∂a = h, ∂f/∂d = 1 − h, ∂f/∂b = −(a − d)·g·h·L·ln(x/c),
 //	∂f/∂c = (a − d)·g·h·L·b/c, ∂f/∂g = −(a − d)·h·ln(1 + eᵗ).
 //
 // At x = 0 (b > 0) f = a and only ∂f/∂a = 1 is non-zero (the limits).
 func (l logistic) Eval(x float64, beta, grad []float64) float64 {
-	a, b, c, d := beta[0], beta[1], beta[2], beta[3]
-	if x == 0 && b > 0 && c > 0 {
+	if !(x > 0) {
+		return l.evalZero(x, beta, grad)
+	}
+	if !(beta[2] > 0) {
+		return math.NaN()
+	}
+	f, _ := l.evalU(logU(x, beta[2]), beta, grad)
+	return f
+}
+
+// evalZero is Eval at x ≤ 0 (NaN there unless x = 0, b > 0 and c > 0).
+func (l logistic) evalZero(x float64, beta, grad []float64) float64 {
+	if x == 0 && beta[1] > 0 && beta[2] > 0 {
 		if grad != nil {
 			clear(grad[:l.NumParams()])
 			grad[0] = 1
 		}
-		return a
+		return beta[0]
 	}
-	if !(x > 0 && c > 0) {
-		return math.NaN()
-	}
-	_, sp, h, lg, g := l.parts(x, beta)
+	return math.NaN()
+}
+
+// evalU is Eval at x > 0 given u = ln(x/c); it also returns h·L.
+func (l logistic) evalU(u float64, beta, grad []float64) (float64, float64) {
+	a, b, c, d := beta[0], beta[1], beta[2], beta[3]
+	g := l.g(beta)
+	h, lg, omh, sp := l.core(b*u, g)
 	if grad != nil {
 		k := (a - d) * g * h * lg
 		grad[0] = h
-		grad[1] = -k * (math.Log(x) - math.Log(c))
+		grad[1] = -k * u
 		grad[2] = k * b / c
-		grad[3] = -math.Expm1(-g * sp)
+		grad[3] = omh
 		if l.five {
 			grad[4] = -(a - d) * h * sp
 		}
 	}
-	return d + (a-d)*h
+	return d + (a-d)*h, h * lg
+}
+
+// evalBatch is Eval over every reading, with lx[i] = ln x[i] given (the
+// solver computes it once): f[i] = f(x[i]; β) and, when jac is not nil, the
+// gradients column-major, ∂f/∂βⱼ at x[i] in jac[j*n+i]. ln c is taken once.
+func (l logistic) evalBatch(x, lx, beta, f, jac []float64) {
+	n, p := len(x), l.NumParams()
+	ok := beta[2] > 0
+	lc := math.Log(beta[2])
+	f = f[:n]
+	lx = lx[:n]
+	var g [5]float64
+	var ja, jb, jc, jd []float64 // the 4PL's Jacobian columns
+	if jac != nil && !l.five {
+		ja, jb, jc, jd = jac[:n], jac[n:2*n], jac[2*n:3*n], jac[3*n:4*n]
+	}
+	for i, xi := range x {
+		var gi []float64
+		if jac != nil {
+			gi = g[:p]
+		}
+		switch {
+		case !(xi > 0):
+			f[i] = l.evalZero(xi, beta, gi)
+		case !ok:
+			f[i] = math.NaN()
+		case !l.five:
+			// The 4PL written out (evalU with g = 1): the solver's loop.
+			a, b, c, d := beta[0], beta[1], beta[2], beta[3]
+			u := lx[i] - lc
+			h, lg, _ := core4(b * u)
+			f[i] = d + (a-d)*h
+			if jac != nil {
+				k := (a - d) * h * lg
+				ja[i], jb[i], jc[i], jd[i] = h, -k*u, k*b/c, lg
+			}
+			continue
+		default:
+			f[i], _ = l.evalU(lx[i]-lc, beta, gi)
+		}
+		for j, v := range gi {
+			jac[j*n+i] = v
+		}
+	}
 }
 
 // slope is ∂f/∂x = −(a − d)·g·h·L·b/x (0 at x = 0 unless 0 < b < 1, where
@@ -142,20 +232,27 @@ func (l logistic) slope(x float64, beta []float64) float64 {
 			return math.Copysign(math.Inf(1), d-a)
 		}
 		if b == 1 {
-			g := 1.0
-			if l.five {
-				g = beta[4]
-			}
-			return (d - a) * g / beta[2]
+			return (d - a) * l.g(beta) / beta[2]
 		}
 		return 0
 	}
-	_, _, h, lg, g := l.parts(x, beta)
+	g := l.g(beta)
+	h, lg, _, _ := l.core(b*logU(x, beta[2]), g)
 	return -(a - d) * g * h * lg * b / x
 }
 
+// evalSlope returns Eval (with grad) and slope at x in one evaluation.
+func (l logistic) evalSlope(x float64, beta, grad []float64) (float64, float64) {
+	if !(x > 0 && beta[2] > 0) {
+		return l.Eval(x, beta, grad), l.slope(x, beta)
+	}
+	f, hl := l.evalU(logU(x, beta[2]), beta, grad)
+	return f, -(beta[0] - beta[3]) * l.g(beta) * hl * beta[1] / x
+}
+
 // invert: with u = (y − d)/(a − d) in (0, 1),
-// x = c·(u^(−1/g) − 1)^(1/b), computed as c·exp(ln(expm1(−ln(u)/g))/b).
+// x = c·(u^(−1/g) − 1)^(1/b), computed as c·exp(ln(expm1(−ln(u)/g))/b)
+// (for the 4PL, c·exp(ln((a − y)/(y − d))/b)).
 // A response outside the open interval between a and d has no inverse.
 func (l logistic) invert(y float64, beta []float64) (float64, string, bool) {
 	a, b, c, d := beta[0], beta[1], beta[2], beta[3]
@@ -170,8 +267,14 @@ func (l logistic) invert(y float64, beta []float64) (float64, string, bool) {
 	case !(y < hi):
 		return 0, FlagAboveAsymptote, false
 	}
-	u := (y - d) / (a - d)
-	e := math.Expm1(-math.Log(u) / g)
+	// e = u^(−1/g) − 1; for the 4PL (g = 1) that is (1 − u)/u = (a − y)/(y − d),
+	// one division instead of a logarithm and an expm1.
+	var e float64
+	if l.five {
+		e = math.Expm1(-math.Log((y-d)/(a-d)) / g)
+	} else {
+		e = (a - y) / (y - d)
+	}
 	x := c * math.Exp(math.Log(e)/b)
 	if !(x > 0) || math.IsInf(x, 0) {
 		// The response is so close to an asymptote that x under- or
@@ -223,6 +326,10 @@ func (powerCurve) slope(x float64, beta []float64) float64 {
 	return a * b * math.Exp((b-1)*math.Log(x))
 }
 
+func (c powerCurve) evalSlope(x float64, beta, grad []float64) (float64, float64) {
+	return c.Eval(x, beta, grad), c.slope(x, beta)
+}
+
 // invert: x = (y/a)^(1/b) for y/a > 0; otherwise no root on x > 0.
 func (powerCurve) invert(y float64, beta []float64) (float64, string, bool) {
 	a, b := beta[0], beta[1]
@@ -267,6 +374,10 @@ func (e expCurve) Eval(x float64, beta, grad []float64) float64 {
 
 func (e expCurve) slope(x float64, beta []float64) float64 {
 	return beta[0] * beta[1] * math.Exp(-beta[1]*x)
+}
+
+func (e expCurve) evalSlope(x float64, beta, grad []float64) (float64, float64) {
+	return e.Eval(x, beta, grad), e.slope(x, beta)
 }
 
 // invert: with u = (y − y0)/a, x = −ln(1 − u)/b for u < 1; u ≥ 1 is at or

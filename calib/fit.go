@@ -76,6 +76,9 @@ func Fit(points []Point, opt Options) (*Report, error) {
 	if IsCurveModel(opt.Model) {
 		return fitCurveReport(points, opt)
 	}
+	if err := opt.Curve.Check(opt.Model); err != nil {
+		return nil, err
+	}
 	opt, err := resolveOptions(opt)
 	if err != nil {
 		return nil, err

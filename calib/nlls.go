@@ -1,10 +1,6 @@
 package calib
 
-import (
-	"math"
-
-	"gonum.org/v1/gonum/mat"
-)
+import "math"
 
 // Curve is a model for non-linear least squares: a response function of one
 // predictor x and NumParams parameters β, with its analytic Jacobian.
@@ -113,7 +109,7 @@ type NLLSResult struct {
 //
 //	min ‖ [√W·J·D⁻¹; √λ·I]·z + [−√W·r; 0] ‖,  δ = D⁻¹z,
 //
-// by Householder QR (gonum mat.QR): one factorisation of √W·J·D⁻¹ per
+// by Householder QR (householderQR, allocation-free): one factorisation of √W·J·D⁻¹ per
 // iteration, then one of the small [R; √λ·I] per trial λ, where r is the
 // residual vector, J the analytic Jacobian over the free parameters and
 // D = diag(dⱼ), dⱼ the largest ‖√W·Jⱼ‖ seen so far (so the damping is
@@ -169,9 +165,12 @@ func checkNLLSInput(p int, x, y, w []float64, opt *NLLSOptions) error {
 	if len(opt.Start) != p {
 		return inputErr("start", "%d starting values for %d parameters", len(opt.Start), p)
 	}
-	for name, v := range map[string][]float64{"lower": opt.Lower, "upper": opt.Upper} {
-		if v != nil && len(v) != p {
-			return inputErr(name, "%d bounds for %d parameters", len(v), p)
+	for _, b := range [...]struct {
+		name string
+		v    []float64
+	}{{"lower", opt.Lower}, {"upper", opt.Upper}} {
+		if b.v != nil && len(b.v) != p {
+			return inputErr(b.name, "%d bounds for %d parameters", len(b.v), p)
 		}
 	}
 	if opt.Fixed != nil && len(opt.Fixed) != p {
@@ -210,54 +209,78 @@ func bounds(opt NLLSOptions, j int) (lo, hi float64) {
 	return lo, hi
 }
 
-// nllsState is the working state of one SolveNLLS call.
+// batchCurve is a Curve that evaluates every reading in one call, given
+// lx[i] = ln x[i] (−Inf at 0, NaN below), which the solver computes once:
+// f[i] = f(x[i]; β) and, when jac is not nil, the gradients column-major:
+// ∂f/∂βⱼ at x[i] in jac[j*n+i]. The logistic models implement it, so that
+// what depends only on β (ln c) is computed once per pass; other curves
+// are evaluated reading by reading through Eval.
+type batchCurve interface {
+	evalBatch(x, lx, beta, f, jac []float64)
+}
+
+// nllsState is the working state of one SolveNLLS call. Every buffer is
+// allocated once, in newNLLSState; an iteration allocates nothing.
 type nllsState struct {
 	c       Curve
+	bc      batchCurve // c as a batchCurve, or nil
 	x, y    []float64
+	lx      []float64 // ln xᵢ (with bc)
 	sw      []float64 // √wᵢ
 	opt     NLLSOptions
 	free    []int
 	beta    []float64 // current parameters (all p)
 	trial   []float64
+	grad    []float64 // scratch gradient of a Curve without evalBatch
 	r       []float64 // √W·(y − f) at beta
 	rt      []float64 // the same at trial
-	jac     []float64 // √W·J over the free parameters, n×k row-major
+	f       []float64 // model values, scratch
+	jfull   []float64 // the Jacobian over all p parameters, column-major (column j at jfull[j*n:]), scratch
+	jac     []float64 // √W·J over the free parameters, column-major: column l at jac[l*n:]
+	jacAt   bool      // jac and r belong to beta
 	d       []float64 // Moré's column scales
-	grad    []float64 // scratch of length p
 	ss      float64
-	ynorm   float64       // ‖√W·y‖
-	big     *mat.Dense    // [√W·J·D⁻¹ | √W·r], n×(k+1), factorised once per iteration
-	bigR    mat.Dense     // its R factor
-	rk      []float64     // leading k×k block of R, row-major
-	qtr     []float64     // first k entries of Qᵀ·√W·r
-	small   *mat.Dense    // [R; √λ·I], 2k×k
-	srhs    *mat.VecDense // [Qᵀ·√W·r; 0]
-	z       *mat.VecDense
-	qr, sqr mat.QR
-	active  []bool // free parameter held at a bound this iteration
+	ynorm   float64   // ‖√W·y‖
+	big     []float64 // [√W·J·D⁻¹ | √W·r], n×(k+1) column-major, factorised once per iteration
+	rk      []float64 // leading k×k block of R, row-major
+	qtr     []float64 // first k entries of Qᵀ·√W·r
+	small   []float64 // [R | Qᵀ·√W·r; √λ·I | 0], 2k×(k+1) column-major
+	z       []float64
+	g       []float64 // Jᵀ·W·r over the free parameters
+	delta   []float64 // trial step
+	active  []bool    // free parameter held at a bound this iteration
 	atBound []bool
 }
 
 func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nllsState {
 	n, p, k := len(x), c.NumParams(), len(free)
-	s := &nllsState{
-		c: c, x: x, y: y, opt: opt, free: free,
-		sw:      make([]float64, n),
-		beta:    append([]float64(nil), opt.Start...),
-		trial:   make([]float64, p),
-		r:       make([]float64, n),
-		rt:      make([]float64, n),
-		jac:     make([]float64, n*k),
-		d:       make([]float64, k),
-		grad:    make([]float64, p),
-		big:     mat.NewDense(n, k+1, nil),
-		rk:      make([]float64, k*k),
-		qtr:     make([]float64, k),
-		small:   mat.NewDense(2*max(k, 1), max(k, 1), nil),
-		srhs:    mat.NewVecDense(2*max(k, 1), nil),
-		z:       mat.NewVecDense(max(k, 1), nil),
-		active:  make([]bool, k),
-		atBound: make([]bool, p),
+	k1 := max(k, 1)
+	// One backing array for every float64 buffer.
+	sizes := []int{n, p, p, p, n, n, n, n * p, n * k, k, n * (k + 1), k * k, k, 2 * k1 * (k1 + 1), k1, k, k, n}
+	tot := 0
+	for _, v := range sizes {
+		tot += v
+	}
+	buf := make([]float64, tot)
+	take := func(m int) []float64 {
+		v := buf[:m:m]
+		buf = buf[m:]
+		return v
+	}
+	s := &nllsState{c: c, x: x, y: y, opt: opt, free: free}
+	s.sw, s.beta, s.trial, s.grad = take(n), take(p), take(p), take(p)
+	s.r, s.rt, s.f, s.jfull, s.jac = take(n), take(n), take(n), take(n*p), take(n*k)
+	s.d, s.big, s.rk, s.qtr = take(k), take(n*(k+1)), take(k*k), take(k)
+	s.small, s.z, s.g, s.delta = take(2*k1*(k1+1)), take(k1), take(k), take(k)
+	copy(s.beta, opt.Start)
+	bools := make([]bool, k+p)
+	s.active, s.atBound = bools[:k:k], bools[k:]
+	if bc, ok := c.(batchCurve); ok {
+		s.bc = bc
+		s.lx = take(n)
+		for i, v := range x {
+			s.lx[i] = math.Log(v)
+		}
 	}
 	for i := range s.sw {
 		s.sw[i] = 1
@@ -269,12 +292,38 @@ func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nlls
 	return s
 }
 
+// eval sets s.f to the model at beta and, when jac, s.jfull to its
+// Jacobian.
+func (s *nllsState) eval(beta []float64, jac bool) {
+	var jf []float64
+	if jac {
+		jf = s.jfull
+	}
+	if s.bc != nil {
+		s.bc.evalBatch(s.x, s.lx, beta, s.f, jf)
+		return
+	}
+	n, p := len(s.x), len(beta)
+	g := s.grad
+	for i, xi := range s.x {
+		if !jac {
+			s.f[i] = s.c.Eval(xi, beta, nil)
+			continue
+		}
+		s.f[i] = s.c.Eval(xi, beta, g)
+		for j := 0; j < p; j++ {
+			jf[j*n+i] = g[j]
+		}
+	}
+}
+
 // residuals sets r = √W·(y − f(x; beta)) and returns Σr², or NaN when a
 // value is not finite.
 func (s *nllsState) residuals(beta, r []float64) float64 {
+	s.eval(beta, false)
 	var ss float64
-	for i, xi := range s.x {
-		ri := s.sw[i] * (s.y[i] - s.c.Eval(xi, beta, nil))
+	for i := range s.x {
+		ri := s.sw[i] * (s.y[i] - s.f[i])
 		r[i] = ri
 		ss += ri * ri
 	}
@@ -287,24 +336,28 @@ func (s *nllsState) residuals(beta, r []float64) float64 {
 // evalJacobian fills r, ss and the weighted Jacobian at beta and updates the
 // column scales; it reports whether everything is finite.
 func (s *nllsState) evalJacobian() bool {
-	for i, xi := range s.x {
-		f := s.c.Eval(xi, s.beta, s.grad)
-		s.r[i] = s.sw[i] * (s.y[i] - f)
-		for l, j := range s.free {
-			s.jac[i*len(s.free)+l] = s.sw[i] * s.grad[j]
+	s.eval(s.beta, true)
+	n := len(s.x)
+	s.ss = 0
+	for i := range s.x {
+		ri := s.sw[i] * (s.y[i] - s.f[i])
+		s.r[i] = ri
+		s.ss += ri * ri
+	}
+	sw := s.sw[:n]
+	for l, j := range s.free {
+		src, dst := s.jfull[j*n:j*n+n], s.jac[l*n:l*n+n]
+		for i, v := range src {
+			dst[i] = sw[i] * v
 		}
 	}
-	s.ss = 0
-	for _, v := range s.r {
-		s.ss += v * v
-	}
+	s.jacAt = true
 	if !Finite(s.ss) {
 		return false
 	}
 	for l := range s.free {
 		var nn float64
-		for i := range s.x {
-			v := s.jac[i*len(s.free)+l]
+		for _, v := range s.jac[l*n : l*n+n] {
 			nn += v * v
 		}
 		if !Finite(nn) {
@@ -317,11 +370,10 @@ func (s *nllsState) evalJacobian() bool {
 
 // iterate runs the Levenberg–Marquardt loop and returns how it ended.
 func (s *nllsState) iterate() NLLSResult {
-	n, k := len(s.x), len(s.free)
+	n := len(s.x)
 	opt := s.opt
 	lambda, nu := 1e-3, 2.0
-	g := make([]float64, k)     // Jᵀ·W·r over the free parameters
-	delta := make([]float64, k) // trial step
+	g, delta := s.g, s.delta
 	var res NLLSResult
 	for it := 1; ; it++ {
 		res.Iterations = it
@@ -333,9 +385,10 @@ func (s *nllsState) iterate() NLLSResult {
 		gmax := 0.0
 		for l, j := range s.free {
 			var gl, cn float64
-			for i := 0; i < n; i++ {
-				a := s.jac[i*k+l]
-				gl += a * s.r[i]
+			col := s.jac[l*n : l*n+n]
+			r := s.r[:n]
+			for i, a := range col {
+				gl += a * r[i]
 				cn += a * a
 			}
 			g[l] = gl
@@ -417,26 +470,94 @@ const nllsEps = 0x1p-52
 // of the iteration to a 2k×k problem (as in Moré's lmpar).
 func (s *nllsState) factor() {
 	n, k := len(s.x), len(s.free)
-	raw := s.big.RawMatrix()
-	for i := 0; i < n; i++ {
-		row := raw.Data[i*raw.Stride : i*raw.Stride+k+1]
-		for l := 0; l < k; l++ {
-			v := 0.0
-			if !s.active[l] {
-				v = s.jac[i*k+l] / s.scale(l)
-			}
-			row[l] = v
+	a := s.big
+	for l := 0; l < k; l++ {
+		col := a[l*n : l*n+n]
+		if s.active[l] {
+			clear(col)
+			continue
 		}
-		row[k] = s.r[i]
+		sc := s.scale(l)
+		for i, v := range s.jac[l*n : l*n+n] {
+			col[i] = v / sc
+		}
 	}
-	s.qr.Factorize(s.big)
-	s.qr.RTo(&s.bigR)
+	copy(a[k*n:k*n+n], s.r)
+	householderQR(a, n, k+1, k)
 	for j := 0; j < k; j++ {
 		for l := 0; l < k; l++ {
-			s.rk[j*k+l] = s.bigR.At(j, l)
+			v := 0.0
+			if l >= j {
+				v = a[l*n+j]
+			}
+			s.rk[j*k+l] = v
 		}
-		s.qtr[j] = s.bigR.At(j, k)
+		s.qtr[j] = a[k*n+j]
 	}
+}
+
+// householderQR reduces the first kc columns of the n×m column-major
+// matrix a (element (i, j) at a[j*n+i]) to upper-triangular form by
+// Householder reflections (LAPACK's dgeqr2 with dlarfg and dlarf), applied
+// to all m columns: afterwards a[j*n+i], i ≤ j, holds R (for the first kc
+// columns) and Qᵀ times the other columns; what lies below the diagonal is
+// scratch. It allocates nothing.
+func householderQR(a []float64, n, m, kc int) {
+	for j := 0; j < kc && j < n; j++ {
+		col := a[j*n : j*n+n]
+		nrm := norm2(col[j:])
+		if nrm == 0 {
+			continue
+		}
+		alpha := col[j]
+		beta := -math.Copysign(nrm, alpha)
+		tau := (beta - alpha) / beta
+		inv := 1 / (alpha - beta)
+		v := col[j+1:]
+		for i := range v {
+			v[i] *= inv
+		}
+		col[j] = beta
+		for l := j + 1; l < m; l++ {
+			cl := a[l*n : l*n+n]
+			cr := cl[j+1:]
+			cr = cr[:len(v)]
+			w := cl[j]
+			for i, vi := range v {
+				w += vi * cr[i]
+			}
+			w *= tau
+			cl[j] -= w
+			for i, vi := range v {
+				cr[i] -= w * vi
+			}
+		}
+	}
+}
+
+// norm2 is the Euclidean norm of v: a plain sum of squares, redone scaled
+// by the largest |vᵢ| when that sum over- or underflows.
+func norm2(v []float64) float64 {
+	var ss float64
+	for _, x := range v {
+		ss += x * x
+	}
+	if ss > 0x1p-900 && ss < 0x1p900 {
+		return math.Sqrt(ss)
+	}
+	var big float64
+	for _, x := range v {
+		big = max(big, math.Abs(x))
+	}
+	if big == 0 || math.IsInf(big, 0) || math.IsNaN(big) {
+		return big
+	}
+	ss = 0
+	for _, x := range v {
+		t := x / big
+		ss += t * t
+	}
+	return big * math.Sqrt(ss)
 }
 
 // scale returns Moré's scale of free parameter l (1 for a column that has
@@ -449,32 +570,39 @@ func (s *nllsState) scale(l int) float64 {
 }
 
 // step solves the damped least-squares problem for λ,
-// min ‖[R; √λ·I]·z − [Qᵀ·√W·r; 0]‖ (by QR, mat.QR), into delta = D⁻¹z (in
-// parameter units, zero for held parameters) and sets s.trial to β + δ
-// projected onto the box. It reports whether the solve gave finite values.
+// min ‖[R; √λ·I]·z − [Qᵀ·√W·r; 0]‖ (by Householder QR of the 2k×k matrix,
+// then back substitution), into delta = D⁻¹z (in parameter units, zero for
+// held parameters) and sets s.trial to β + δ projected onto the box. It
+// reports whether the solve gave finite values.
 func (s *nllsState) step(lambda float64, delta []float64) bool {
 	k := len(s.free)
+	m := 2 * k
 	sl := math.Sqrt(lambda)
-	raw := s.small.RawMatrix()
-	for j := 0; j < 2*k; j++ {
-		row := raw.Data[j*raw.Stride : j*raw.Stride+k]
-		clear(row)
-		if j < k {
-			copy(row, s.rk[j*k:j*k+k])
-			s.srhs.SetVec(j, s.qtr[j])
-			continue
+	a := s.small[:m*(k+1)]
+	clear(a)
+	for l := 0; l < k; l++ {
+		col := a[l*m : l*m+m]
+		for j := 0; j <= l; j++ {
+			col[j] = s.rk[j*k+l]
 		}
-		s.srhs.SetVec(j, 0)
-		row[j-k] = sl
-		if s.active[j-k] {
-			row[j-k] = 1
+		col[k+l] = sl
+		if s.active[l] {
+			col[k+l] = 1
 		}
 	}
-	s.sqr.Factorize(s.small)
-	_ = s.sqr.SolveVecTo(s.z, false, s.srhs) // a Condition error still leaves a usable z; non-finite z is caught below
+	copy(a[k*m:k*m+k], s.qtr)
+	householderQR(a, m, k+1, k)
+	z := s.z[:k]
+	for j := k - 1; j >= 0; j-- {
+		v := a[k*m+j]
+		for l := j + 1; l < k; l++ {
+			v -= a[l*m+j] * z[l]
+		}
+		z[j] = v / a[j*m+j]
+	}
 	copy(s.trial, s.beta)
 	for l, j := range s.free {
-		v := s.z.AtVec(l) / s.scale(l)
+		v := z[l] / s.scale(l)
 		if s.active[l] {
 			v = 0
 		}
@@ -493,13 +621,16 @@ func (s *nllsState) step(lambda float64, delta []float64) bool {
 // the (projected) step δ: ‖r‖² − ‖r − J·δ‖² = Σ (J·δ)ᵢ(2rᵢ − (J·δ)ᵢ),
 // summed in that form so that it does not cancel against ‖r‖².
 func (s *nllsState) predicted(delta []float64) float64 {
-	var pred float64
-	k := len(s.free)
-	for i := range s.x {
-		var v float64
-		for l, jl := range s.jac[i*k : i*k+k] {
-			v += jl * delta[l]
+	n := len(s.x)
+	jd := s.f[:n] // scratch: the model values are not needed between passes
+	clear(jd)
+	for l, dl := range delta {
+		for i, v := range s.jac[l*n : l*n+n] {
+			jd[i] += v * dl
 		}
+	}
+	var pred float64
+	for i, v := range jd {
 		pred += v * (2*s.r[i] - v)
 	}
 	return pred
@@ -517,6 +648,7 @@ func (s *nllsState) scaledNorms(delta []float64) (float64, float64) {
 
 // accept makes the trial parameters current.
 func (s *nllsState) accept() {
+	s.jacAt = false
 	copy(s.beta, s.trial)
 	copy(s.r, s.rt)
 	s.ss = 0
@@ -530,8 +662,8 @@ func (s *nllsState) accept() {
 func (s *nllsState) finish(res NLLSResult) NLLSResult {
 	n, p, k := len(s.x), len(s.beta), len(s.free)
 	// The Jacobian matches beta unless the last accepted step ended the loop
-	// by the SS criterion; re-evaluating is cheap and always consistent.
-	if !s.evalJacobian() {
+	// (by the SS criterion); then it is evaluated at the final parameters.
+	if !s.jacAt && !s.evalJacobian() {
 		res.Outcome, res.Criterion = Stalled, "the Jacobian is not finite at the final parameters"
 	}
 	res.Params = append([]float64(nil), s.beta...)
@@ -556,9 +688,10 @@ func (s *nllsState) finish(res NLLSResult) NLLSResult {
 		return res
 	}
 	res.Covariance = make([][]float64, p)
-	res.StdErrors = make([]float64, p)
+	cb := make([]float64, p*p+p)
+	res.StdErrors = cb[p*p:]
 	for j := range res.Covariance {
-		res.Covariance[j] = make([]float64, p)
+		res.Covariance[j] = cb[j*p : j*p+p : j*p+p]
 	}
 	for a, ja := range s.free {
 		for b, jb := range s.free {
@@ -570,52 +703,47 @@ func (s *nllsState) finish(res NLLSResult) NLLSResult {
 }
 
 // covariance returns s²(JᵀWJ)⁻¹ (k×k row-major over the free parameters)
-// from the QR factor of √W·J with columns scaled to unit norm, and false
-// when that factor is numerically singular.
+// from the Householder QR factor of √W·J with columns scaled to unit norm,
+// and false when that factor is numerically singular.
 func (s *nllsState) covariance(sd float64) ([]float64, bool) {
 	n, k := len(s.x), len(s.free)
-	a := mat.NewDense(n, k, nil)
-	sc := make([]float64, k)
+	work := make([]float64, n*k+k+2*k*k)
+	a, sc, ri, cov := work[:n*k], work[n*k:n*k+k], work[n*k+k:n*k+k+k*k], work[n*k+k+k*k:]
 	for l := 0; l < k; l++ {
 		var nn float64
-		for i := 0; i < n; i++ {
-			v := s.jac[i*k+l]
+		for _, v := range s.jac[l*n : l*n+n] {
 			nn += v * v
 		}
 		if !(nn > 0) || math.Sqrt(nn)*math.Abs(s.beta[s.free[l]]) <= 1e-12*s.ynorm {
 			return nil, false
 		}
 		sc[l] = 1 / math.Sqrt(nn)
-		for i := 0; i < n; i++ {
-			a.Set(i, l, s.jac[i*k+l]*sc[l])
+		for i, v := range s.jac[l*n : l*n+n] {
+			a[l*n+i] = v * sc[l]
 		}
 	}
-	var qr mat.QR
-	qr.Factorize(a)
-	var r mat.Dense
-	qr.RTo(&r)
+	householderQR(a, n, k, k)
+	r := func(j, l int) float64 { return a[l*n+j] }
 	maxd := 0.0
 	for l := 0; l < k; l++ {
-		maxd = max(maxd, math.Abs(r.At(l, l)))
+		maxd = max(maxd, math.Abs(r(l, l)))
 	}
 	for l := 0; l < k; l++ {
-		if !(math.Abs(r.At(l, l)) > 1e-12*maxd) {
+		if !(math.Abs(r(l, l)) > 1e-12*maxd) {
 			return nil, false
 		}
 	}
 	// R⁻¹ by back substitution; (AᵀA)⁻¹ = R⁻¹R⁻ᵀ.
-	ri := make([]float64, k*k)
 	for j := k - 1; j >= 0; j-- {
-		ri[j*k+j] = 1 / r.At(j, j)
+		ri[j*k+j] = 1 / r(j, j)
 		for l := j + 1; l < k; l++ {
 			var v float64
 			for m := j + 1; m <= l; m++ {
-				v += r.At(j, m) * ri[m*k+l]
+				v += r(j, m) * ri[m*k+l]
 			}
-			ri[j*k+l] = -v / r.At(j, j)
+			ri[j*k+l] = -v / r(j, j)
 		}
 	}
-	cov := make([]float64, k*k)
 	s2 := sd * sd
 	for j := 0; j < k; j++ {
 		for l := 0; l < k; l++ {

@@ -15,6 +15,11 @@ import (
 //     b·ln x − b·ln c, u = (y − d)/(a − d) (the logit linearisation, over
 //     x > 0). Should the line fail (b ≤ 0), b = 1 and c the geometric mean
 //     of the positive concentrations.
+//     Given b and c the 4PL is linear in a and d, y = a·h + d·(1 − h) with
+//     h = 1/(1 + (x/c)^b): when both are free, a and d are then replaced by
+//     their weighted least-squares values if those are finite and keep
+//     the curve's direction (a partially linear start; it saves the
+//     solver a few iterations).
 //   - 5PL: the fitted 4PL (same data, weights and fixed a, b, c, d), g = 1.
 //   - power: the straight line ln|y| = ln|a| + b·ln x over readings with
 //     x > 0 and y of the majority sign.
@@ -33,6 +38,7 @@ func selfStart(m Model, x, y, w []float64, opt CurveOptions, lower, upper []floa
 	switch m {
 	case FourPL:
 		s = startLogistic(x, y, ends, fixed)
+		refineAsymptotes(x, y, w, s, fixed)
 	case FivePL:
 		o := opt
 		o.Model, o.Start, o.MaxIter = FourPL, nil, 0
@@ -123,15 +129,17 @@ func startLogistic(x, y []float64, e [4]float64, fixed func(int) (float64, bool)
 	if v, ok := fixed(3); ok {
 		d = v
 	}
-	var lx, z, all []float64
+	buf := make([]float64, 0, 3*len(x))
+	all, lx, z := buf[0:0:len(x)], buf[len(x):len(x):2*len(x)], buf[2*len(x):2*len(x)]
 	for i := range x {
 		if x[i] > 0 {
-			all = append(all, math.Log(x[i]))
+			l := math.Log(x[i])
+			all = append(all, l)
 			if a == d {
 				continue
 			}
 			u := min(max((y[i]-d)/(a-d), 0.01), 0.99)
-			lx = append(lx, math.Log(x[i]))
+			lx = append(lx, l)
 			z = append(z, math.Log(1/u-1))
 		}
 	}
@@ -204,4 +212,44 @@ func startExp(x, y []float64, e [4]float64, offset bool, fixed func(int) (float6
 		return []float64{a, b, y0}
 	}
 	return []float64{a, b}
+}
+
+// refineAsymptotes replaces a and d of the 4PL start s by the weighted
+// least-squares solution of y = a·h + d·(1 − h), h = 1/(1 + (x/c)^b) at
+// the start's b and c, when neither is fixed and the solution is finite
+// and keeps the sign of a − d.
+func refineAsymptotes(x, y, w, s []float64, fixed func(int) (float64, bool)) {
+	if _, ok := fixed(0); ok {
+		return
+	}
+	if _, ok := fixed(3); ok {
+		return
+	}
+	b, lc := s[1], math.Log(s[2])
+	var shh, sho, soo, shy, soy float64
+	for i, xi := range x {
+		h := 1.0
+		if xi > 0 {
+			h = 1 / (1 + math.Exp(b*(math.Log(xi)-lc)))
+		}
+		wi := 1.0
+		if w != nil {
+			wi = w[i]
+		}
+		o := 1 - h
+		shh += wi * h * h
+		sho += wi * h * o
+		soo += wi * o * o
+		shy += wi * h * y[i]
+		soy += wi * o * y[i]
+	}
+	det := shh*soo - sho*sho
+	if !(det > 1e-12*shh*soo) {
+		return
+	}
+	a := (shy*soo - soy*sho) / det
+	d := (soy*shh - shy*sho) / det
+	if Finite(a, d) && (a-d)*(s[0]-s[3]) > 0 {
+		s[0], s[3] = a, d
+	}
 }

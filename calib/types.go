@@ -155,6 +155,9 @@ type Options struct {
 	Confidence float64 // two-sided confidence level for intervals; 0 means 0.95
 	Policy     Policy
 	Weights    WeightOptions // zero fields take DefaultWeightOptions' values
+	// Curve seeds or holds coefficients of a non-linear model by name
+	// (empty for the least-squares models).
+	Curve CurveParameters
 }
 
 // Policy holds every acceptance threshold. DefaultPolicy documents the

@@ -1,6 +1,7 @@
 package lab
 
 import (
+	"errors"
 	"fmt"
 	"math"
 	"reflect"
@@ -39,6 +40,9 @@ type MethodInput struct {
 	Description string
 	// Standards: whether an out-of-date standard material fails a curve.
 	Standards StandardsPolicy
+	// Curve seeds or holds coefficients of a non-linear model by name
+	// (calib.CurveParameters); empty for the least-squares models.
+	Curve calib.CurveParameters
 }
 
 // Method is one stored revision of a method.
@@ -54,13 +58,14 @@ type Method struct {
 	Weights     calib.WeightOptions // every field filled
 	Description string
 	Standards   StandardsPolicy
+	Curve       calib.CurveParameters // see MethodInput.Curve
 	CreatedAt   time.Time
 	CreatedBy   string
 }
 
 // Options returns the engine options this method revision fits with.
 func (m *Method) Options() calib.Options {
-	return calib.Options{Model: m.Model, Weighting: m.Weighting, Confidence: m.Confidence, Policy: m.Acceptance, Weights: m.Weights}
+	return calib.Options{Model: m.Model, Weighting: m.Weighting, Confidence: m.Confidence, Policy: m.Acceptance, Weights: m.Weights, Curve: m.Curve}
 }
 
 // Analyte returns the method's analyte called name.
@@ -137,6 +142,13 @@ func CheckMethod(in MethodInput) error {
 	}
 	if !slices.Contains(calib.SigmaBases(), in.Weights.LimitSigma) {
 		return FieldError("/weighting_options/limit_sigma", "unknown σ basis %q", in.Weights.LimitSigma)
+	}
+	if err := in.Curve.Check(in.Model); err != nil {
+		var ie *calib.InputError
+		if errors.As(err, &ie) {
+			return FieldError("/curve_parameters"+strings.ReplaceAll(strings.TrimPrefix(ie.Field, "options.curve"), ".", "/"), "%s", ie.Reason)
+		}
+		return err
 	}
 	v := reflect.ValueOf(in.Acceptance)
 	for i := 0; i < v.NumField(); i++ {

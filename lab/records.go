@@ -2,6 +2,7 @@ package lab
 
 import (
 	"encoding/json"
+	"slices"
 	"time"
 
 	"curvekeeper/calib"
@@ -40,6 +41,9 @@ type CurveSummary struct {
 	ReviewedBy     string
 	// Copies of report values for trends; nil when not computed.
 	Slope, Intercept, ResidualSD, RSquared, LOD *float64
+	// Coefficients of a converged non-linear curve in its model's order
+	// (calib.ParameterNames), read for trends only; nil otherwise.
+	Coefficients []float64
 	// FailedChecks names the checks that did not pass, mandatory or advisory.
 	FailedChecks []string
 }
@@ -226,6 +230,9 @@ func (c *CurveSummary) ParamValue(p string) (float64, bool) {
 	case ParamLOD:
 		v = c.LOD
 	}
+	if i := slices.Index(calib.ParameterNames(c.Model), p); v == nil && i >= 0 && i < len(c.Coefficients) {
+		v = &c.Coefficients[i]
+	}
 	if v == nil {
 		return 0, false
 	}
@@ -303,10 +310,20 @@ const (
 	ParamResidualSD = "residual_sd"
 	ParamRSquared   = "r_squared"
 	ParamLOD        = "lod"
+	// The coefficients of the non-linear models by name (calib.FourPL and
+	// the others): the 4PL's a, b, c, d and the 5PL's g; power and
+	// exponential curves share a and b, the offset exponential adds y0.
+	ParamA  = "a"
+	ParamB  = "b"
+	ParamC  = "c"
+	ParamD  = "d"
+	ParamG  = "g"
+	ParamY0 = "y0"
 )
 
 // TrendParameters lists the parameters in a fixed order.
-var TrendParameters = []string{ParamSlope, ParamIntercept, ParamResidualSD, ParamRSquared, ParamLOD}
+var TrendParameters = []string{ParamSlope, ParamIntercept, ParamResidualSD, ParamRSquared, ParamLOD,
+	ParamA, ParamB, ParamC, ParamD, ParamG, ParamY0}
 
 // MaxTrendPoints bounds the curves one trend reads.
 const MaxTrendPoints = 1000

@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"maps"
 	"reflect"
 	"slices"
 	"sync"
@@ -61,6 +62,10 @@ func (db *DB) CreateMethod(ctx context.Context, in lab.MethodInput, actor string
 	if err != nil {
 		return nil, false, fmt.Errorf("store: marshal standards policy: %w", err)
 	}
+	curveJSON, err := json.Marshal(in.Curve)
+	if err != nil {
+		return nil, false, fmt.Errorf("store: marshal curve parameters: %w", err)
+	}
 	err = db.inTx(ctx, func(tx pgx.Tx) error {
 		m, created = nil, false
 		if _, err := tx.Exec(ctx, `SELECT pg_advisory_xact_lock(hashtextextended('curvekeeper.method:' || $1, 0))`, in.Name); err != nil {
@@ -80,11 +85,11 @@ func (db *DB) CreateMethod(ctx context.Context, in lab.MethodInput, actor string
 			revision = latest.Revision + 1
 		}
 		m, err = scanMethod(tx.QueryRow(ctx, `
-INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by, qc, description, weighting_options, standards)
-VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12)
+INSERT INTO methods (name, revision, model, weighting, confidence, analytes, acceptance, created_by, qc, description, weighting_options, standards, curve_parameters)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13)
 RETURNING `+methodColumns,
 			in.Name, revision, string(in.Model), string(in.Weighting), in.Confidence, analytesJSON, policyJSON, actor, qcJSON,
-			in.Description, weightsJSON, standardsJSON))
+			in.Description, weightsJSON, standardsJSON, curveJSON))
 		if err != nil {
 			return classify("insert method "+in.Name, err)
 		}
@@ -97,7 +102,7 @@ RETURNING `+methodColumns,
 			map[string]any{"name": m.Name, "revision": m.Revision, "model": m.Model, "weighting": m.Weighting,
 				"confidence": m.Confidence, "analytes": m.Analytes, "acceptance": json.RawMessage(policyJSON),
 				"qc": json.RawMessage(qcJSON), "weighting_options": json.RawMessage(weightsJSON),
-				"standards": json.RawMessage(standardsJSON)})
+				"standards": json.RawMessage(standardsJSON), "curve_parameters": json.RawMessage(curveJSON)})
 	})
 	if err != nil {
 		return nil, false, classify("create method", err)
@@ -109,11 +114,12 @@ func sameMethod(m *lab.Method, in lab.MethodInput) bool {
 	return m.Model == in.Model && m.Weighting == in.Weighting && m.Confidence == in.Confidence &&
 		m.Description == in.Description &&
 		slices.Equal(m.Analytes, in.Analytes) && reflect.DeepEqual(m.Acceptance, in.Acceptance) &&
-		m.QC.Equal(in.QC) && m.Weights == in.Weights && m.Standards == in.Standards
+		m.QC.Equal(in.QC) && m.Weights == in.Weights && m.Standards == in.Standards &&
+		m.Curve.Equal(in.Curve)
 }
 
 const (
-	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by, qc, description, weighting_options, standards`
+	methodColumns   = `name, revision, model, weighting, confidence, analytes, acceptance, created_at, created_by, qc, description, weighting_options, standards, curve_parameters`
 	sqlSelectMethod = `SELECT ` + methodColumns + ` FROM methods`
 )
 
@@ -148,10 +154,10 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*lab.Method, error) {
 		model, weighting     string
 		analytes, acceptance []byte
 		qc, weights          []byte
-		standards            []byte
+		standards, curve     []byte
 	)
 	if err := row.Scan(&m.Name, &m.Revision, &model, &weighting, &m.Confidence, &analytes, &acceptance, &m.CreatedAt, &m.CreatedBy,
-		&qc, &m.Description, &weights, &standards); err != nil {
+		&qc, &m.Description, &weights, &standards, &curve); err != nil {
 		return nil, err
 	}
 	m.Model, m.Weighting = calib.Model(model), calib.Weighting(weighting)
@@ -164,6 +170,7 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*lab.Method, error) {
 			// A copy the caller may change.
 			m.Analytes, m.Acceptance, m.QC, m.Weights = slices.Clone(c.Analytes), c.Acceptance, c.QC, c.Weights
 			m.Standards = c.Standards
+			m.Curve = calib.CurveParameters{Start: maps.Clone(c.Curve.Start), Fixed: maps.Clone(c.Curve.Fixed)}
 			m.Acceptance.Mandatory = slices.Clone(c.Acceptance.Mandatory)
 			return &m, nil
 		}
@@ -185,9 +192,13 @@ func scanMethodVia(row pgx.Row, cache *methodDecodes) (*lab.Method, error) {
 	if err := json.Unmarshal(standards, &m.Standards); err != nil {
 		return nil, fmt.Errorf("decode standards policy of method %s/%d: %w", m.Name, m.Revision, err)
 	}
+	if err := json.Unmarshal(curve, &m.Curve); err != nil {
+		return nil, fmt.Errorf("decode curve parameters of method %s/%d: %w", m.Name, m.Revision, err)
+	}
 	if cache != nil {
 		c := m
 		c.Analytes, c.Acceptance.Mandatory = slices.Clone(m.Analytes), slices.Clone(m.Acceptance.Mandatory)
+		c.Curve = calib.CurveParameters{Start: maps.Clone(m.Curve.Start), Fixed: maps.Clone(m.Curve.Fixed)}
 		cache.mu.Lock()
 		if cache.m == nil || len(cache.m) >= maxMethodDecodes {
 			cache.m = map[methodKey]*lab.Method{}

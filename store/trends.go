@@ -2,6 +2,7 @@ package store
 
 import (
 	"context"
+	"encoding/json"
 	"fmt"
 	"slices"
 	"time"
@@ -20,7 +21,11 @@ func (db *DB) TrendSeries(ctx context.Context, f lab.TrendFilter) (curves []lab.
 		return nil, false, lab.FieldError("/instrument", "a trend needs an instrument and an analyte")
 	}
 	args := []any{f.Instrument, f.Analyte}
-	sql := `SELECT ` + curveColumns + ` FROM curves WHERE instrument = $1 AND analyte = $2`
+	// The coefficients of a converged non-linear curve, for the trends of
+	// its parameters by name (NULL for the other curves).
+	sql := `SELECT ` + curveColumns + `,
+CASE WHEN report->'Curve'->>'Outcome' = 'converged' THEN report->'Coefficients' END
+FROM curves WHERE instrument = $1 AND analyte = $2`
 	if !f.From.IsZero() {
 		args = append(args, f.From)
 		sql += fmt.Sprintf(` AND acquired_at >= $%d`, len(args))
@@ -36,7 +41,12 @@ func (db *DB) TrendSeries(ctx context.Context, f lab.TrendFilter) (curves []lab.
 		return nil, false, classify("trend series", err)
 	}
 	curves, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.CurveSummary, error) {
-		return scanCurveSummary(row)
+		var coef []byte
+		c, err := scanCurveSummary(row, &coef)
+		if err == nil && coef != nil {
+			err = json.Unmarshal(coef, &c.Coefficients)
+		}
+		return c, err
 	})
 	if err != nil {
 		return nil, false, classify("scan trend series", err)

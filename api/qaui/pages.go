@@ -333,7 +333,7 @@ func (s *Pages) curveView(c echo.Context, id string) (*curveView, error) {
 	if v.Signing, err = s.signingViewOf(c, cv.ID); err != nil {
 		return nil, err
 	}
-	tq := url.Values{"instrument": {cv.Instrument}, "analyte": {cv.Analyte}, "parameter": {lab.ParamSlope}}
+	tq := url.Values{"instrument": {cv.Instrument}, "analyte": {cv.Analyte}, "parameter": {trendParamOf(cv.Model)}}
 	v.TrendLink = template.URL("/ui/trends?" + tq.Encode())
 	if sessionOf(c).CanReview() {
 		events, err := s.Audit(ctx, id)
@@ -612,4 +612,17 @@ func formProblem(err error) (string, bool) {
 		return "", false
 	}
 	return se.Message, true
+}
+
+// trendParamOf is the parameter a curve page's trend link follows: the
+// slope of a straight line or quadratic, a logistic's inflection c (its
+// EC50 for the 4PL), another non-linear model's a.
+func trendParamOf(m calib.Model) string {
+	switch {
+	case m == calib.FourPL || m == calib.FivePL:
+		return lab.ParamC
+	case calib.IsCurveModel(m):
+		return lab.ParamA
+	}
+	return lab.ParamSlope
 }

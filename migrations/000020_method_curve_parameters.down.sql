@@ -1,0 +1,1 @@
+ALTER TABLE methods DROP COLUMN IF EXISTS curve_parameters;
