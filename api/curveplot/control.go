@@ -160,9 +160,9 @@ func addLimits(p *plot.Plot, mean, sd float64) {
 		width  vg.Length
 		warn   bool
 	}{
-		{0, "Centre line (mean)", dashBaseline, 1.2, false},
-		{2, "Warning limits, ±2 SD", dashWarning, 1, true},
-		{3, "Action limits, ±3 SD", dashAction, 1.3, false},
+		{0, "Centre (mean)", dashBaseline, 1.2, false},
+		{2, "Warning ±2 SD", dashWarning, 1, true},
+		{3, "Action ±3 SD", dashAction, 1.3, false},
 	} {
 		for i, sign := range []float64{1, -1} {
 			if l.k == 0 && i == 1 {

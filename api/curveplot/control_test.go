@@ -50,9 +50,9 @@ func TestControlChartSVG(t *testing.T) {
 		"Control chart: slope, nitrate",
 		"Date (UTC)",
 		"slope",
-		"Centre line (mean)",
-		"Warning limits, ±2 SD",
-		"Action limits, ±3 SD",
+		"Centre (mean)",
+		"Warning ±2 SD",
+		"Action ±3 SD",
 		"In control",
 		"Rule violated",
 		"slope (response per mg/L)", // the y axis names its unit
@@ -99,7 +99,7 @@ func TestControlChartDegenerate(t *testing.T) {
 		want string // text the figure must show
 	}{
 		{"empty", Series{Parameter: "slope"}, "no values in this period"},
-		{"one value", one, "Centre line (mean)"},
+		{"one value", one, "Centre (mean)"},
 		{"NaN values", nan, "Rule violated"},
 		{"zero SD", noSD, "no control limits"},
 		{"NaN mean", nanMean, "no control limits"},
