@@ -81,14 +81,6 @@ func (l logistic) NumParams() int {
 	return 4
 }
 
-// softplus returns ln(1 + eᵗ) without overflow.
-func softplus(t float64) float64 {
-	if t > 0 {
-		return t + math.Log1p(math.Exp(-t))
-	}
-	return math.Log1p(math.Exp(t))
-}
-
 // logU returns ln(x/c) for x, c > 0: one logarithm of the ratio, or
 // ln x − ln c when the ratio under- or overflows.
 func logU(x, c float64) float64 {
