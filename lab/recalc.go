@@ -68,7 +68,7 @@ func (s *Service) Recalculate(ctx context.Context, id string) (*Recalculation, e
 	for i := range pts {
 		pts[i].Excluded = stored.Points[i].Excluded
 	}
-	opts := m.Options()
+	opts := m.OptionsFor(c.Analyte)
 	rep, err := calib.Fit(pts, opts)
 	if err != nil {
 		var ie *calib.InputError
