@@ -145,7 +145,7 @@ func fitRun(m *Method, in *RunInput) ([]CurveInput, error) {
 			return nil, err
 		}
 	}
-	if err := checkSequence(in.Sequence, in.Samples); err != nil {
+	if err := checkSequence(m, in.Sequence, in.Samples); err != nil {
 		return nil, err
 	}
 	curves := make([]CurveInput, 0, len(order))
