@@ -171,7 +171,7 @@ func prepareRun(ctx context.Context, in lab.RunInput, curves []lab.CurveInput) (
 	}
 	payload, err := json.Marshal(storedPayload{Method: in.Method, MethodRevision: in.MethodRevision,
 		Instrument: in.Instrument, AcquiredAt: in.AcquiredAt, Operator: in.Operator,
-		SourceFormat: in.SourceFormat, Standards: in.Standards, Samples: samples, Materials: in.Materials})
+		SourceFormat: in.SourceFormat, Standards: in.Standards, Samples: samples, Materials: in.Materials, Sequence: in.Sequence})
 	if err != nil {
 		return nil, nil, fmt.Errorf("store: marshal run payload: %w", err)
 	}
@@ -353,10 +353,11 @@ func (db *DB) GetRun(ctx context.Context, id string) (*lab.Run, error) {
 func readRun(ctx context.Context, tx pgx.Tx, id string) (*lab.Run, error) {
 	r := &lab.Run{ID: id, Standards: []lab.Standard{}, Samples: []lab.Sample{}, Curves: []lab.CurveRef{}}
 	var operator *string
+	var sequence []byte
 	err := tx.QueryRow(ctx, `
-SELECT method, method_revision, instrument, acquired_at, operator, received_at, received_by, source_format
+SELECT method, method_revision, instrument, acquired_at, operator, received_at, received_by, source_format, payload->'sequence'
 FROM runs WHERE id = $1`, id).Scan(&r.Method, &r.MethodRevision, &r.Instrument, &r.AcquiredAt, &operator,
-		&r.ReceivedAt, &r.ReceivedBy, &r.SourceFormat)
+		&r.ReceivedAt, &r.ReceivedBy, &r.SourceFormat, &sequence)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, lab.Errorf(lab.KindNotFound, "run %s not found", id)
 	}
@@ -365,6 +366,12 @@ FROM runs WHERE id = $1`, id).Scan(&r.Method, &r.MethodRevision, &r.Instrument, 
 	}
 	if operator != nil {
 		r.Operator = *operator
+	}
+	if len(sequence) > 0 && string(sequence) != "null" {
+		r.Sequence = new(lab.RunSequence)
+		if err := json.Unmarshal(sequence, r.Sequence); err != nil {
+			return nil, fmt.Errorf("store: decode the sequence of run %s: %w", id, err)
+		}
 	}
 	mrows, err := tx.Query(ctx, `SELECT material FROM run_standard_materials WHERE run_id = $1 ORDER BY position`, id)
 	if err != nil {
