@@ -40,6 +40,7 @@ type CurveSummary struct {
 	ReviewedBy     string
 	// Copies of report values for trends; nil when not computed.
 	Slope, Intercept, ResidualSD, RSquared, LOD *float64
+	ISResponse                                  *float64 // mean IS response of the calibrators; nil without an IS
 	// FailedChecks names the checks that did not pass, mandatory or advisory.
 	FailedChecks []string
 }
@@ -225,6 +226,8 @@ func (c *CurveSummary) ParamValue(p string) (float64, bool) {
 		v = c.RSquared
 	case ParamLOD:
 		v = c.LOD
+	case ParamISResponse:
+		v = c.ISResponse
 	}
 	if v == nil {
 		return 0, false
@@ -303,10 +306,14 @@ const (
 	ParamResidualSD = "residual_sd"
 	ParamRSquared   = "r_squared"
 	ParamLOD        = "lod"
+	// ParamISResponse is the mean internal-standard response of the
+	// curve's calibrators (none without an internal standard): a falling
+	// series shows the instrument losing sensitivity before the ratios do.
+	ParamISResponse = "is_response"
 )
 
 // TrendParameters lists the parameters in a fixed order.
-var TrendParameters = []string{ParamSlope, ParamIntercept, ParamResidualSD, ParamRSquared, ParamLOD}
+var TrendParameters = []string{ParamSlope, ParamIntercept, ParamResidualSD, ParamRSquared, ParamLOD, ParamISResponse}
 
 // MaxTrendPoints bounds the curves one trend reads.
 const MaxTrendPoints = 1000

@@ -1,3 +1,5 @@
+ALTER TABLE curves DROP COLUMN is_response;
+
 -- Restores the constraints of 000015. Fails while a method or curve uses
 -- average_rf: such rows are evidence and are not deleted here.
 ALTER TABLE curves DROP CONSTRAINT curves_model_check;

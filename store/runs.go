@@ -43,6 +43,7 @@ type preparedCurve struct {
 // curveScalars are the report values copied into columns for trends.
 type curveScalars struct {
 	slope, intercept, residualSD, rSquared, lod *float64
+	isResponse                                  *float64 // mean IS response of the calibrators; nil without an IS
 }
 
 func fptr(v float64) *float64 {
@@ -92,6 +93,13 @@ func prepareCurve(c lab.CurveInput) (preparedCurve, error) {
 	r := c.Report
 	p := preparedCurve{id: id, in: c, model: string(r.Model), weighting: string(r.Weighting),
 		verdict: r.Verdict, engine: r.Engine, scalars: scalarsOf(r)}
+	if n := len(c.CalibratorIS); n > 0 {
+		var sum float64
+		for _, v := range c.CalibratorIS {
+			sum += v
+		}
+		p.scalars.isResponse = fptr(sum / float64(n))
+	}
 	if p.weighting == "" {
 		p.weighting = string(r.WeightingRequested)
 	}
