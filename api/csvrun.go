@@ -28,8 +28,8 @@ const (
 	csvMaxEcho      = 64   // bytes of an offending cell quoted back in a detail
 
 	// csvMaxRows caps the data rows of one body. The schema's own limits
-	// allow 500 levels × 1000 readings + 1000 samples × 1000 readings =
-	// 1.5 million readings, more than any run needs and more than is safe to
+	// allow 1000 levels × 1000 readings + 1000 samples × 1000 readings =
+	// 2 million readings, more than any run needs and more than is safe to
 	// hold per request; 200,000 rows is the service's own cap for memory
 	// safety (a few MB of decoded values at most). The server's body limit
 	// (8 MiB by default) applies upstream as well.
