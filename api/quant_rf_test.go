@@ -106,6 +106,13 @@ func TestAverageRFThroughTheAPI(t *testing.T) {
 		t.Errorf("verdict %s: %+v", c.Verdict, c.Checks)
 	}
 
+	// Fitted again from the stored run, the curve is the same.
+	var rc oapi.Recalculation
+	rc = decode[oapi.Recalculation](t, e.postJSON(t, e.admin, "/v1/curves/"+rfID+"/recalculation", nil), http.StatusOK)
+	if !rc.Identical || len(rc.Differences) != 0 {
+		t.Errorf("recalculation of the average RF curve differs: %+v", rc.Differences)
+	}
+
 	// A prediction from the ratio, and the stored result from the sample's
 	// readings (ratio 6000/800 = 7.5), give the worked example's numbers.
 	pr := decode[oapi.PredictionResponse](t, e.postJSON(t, e.admin, "/v1/curves/"+rfID+"/predictions",

@@ -25,6 +25,12 @@ const AverageRF Model = "average_rf"
 // response factors ≤ Policy.MaxRFRSDPct (default DefaultRFMaxRSDPct).
 const CheckRFRSD = "rf_rsd"
 
+// rfReportSource names where the RFs of a Report come from: with an
+// internal standard y is the ratio A_x/A_is, so RF_i is the relative
+// response factor of RFSource divided by C_is (the same in every standard
+// and sample, so x̂0 is the same).
+const rfReportSource = "RF_i = y_i/x_i; with an internal standard y = A_x/A_is and RF_i is the RRF (A_x·C_is)/(A_is·C_x) of US EPA SW-846 Method 8000 §11.4.3 (as transcribed) divided by C_is; average-RF linearity %RSD ≤ 20 % after SW-846 8000D (from memory); the laboratory's method overrides it"
+
 // RFDetails is what the average RF model adds to a Report.
 type RFDetails struct {
 	RFs       []float64 // RF_i of every fitted non-zero reading, in input order
@@ -88,7 +94,7 @@ func fitAverageRFReport(points []Point, opt Options) (*Report, error) {
 	// RF̄ itself, not the QR solution it equals up to rounding.
 	r.Coefficients[0] = m.Mean
 	r.RF = &RFDetails{RFs: m.RFs, Levels: m.Levels, Mean: m.Mean, SD: m.SD, RSDPct: m.RSDPct, K: m.K,
-		MaxRSDPct: m.MaxRSDPct, Blanks: blanks, Source: RFSource,
+		MaxRSDPct: m.MaxRSDPct, Blanks: blanks, Source: rfReportSource,
 		Basis: "RF_i = y_i/x_i of each non-zero reading (y the response, or the response ratio A_x/A_is with an internal standard); readings at nominal zero give none and are listed as excluded from the fit"}
 	c := Check{Name: CheckRFRSD, Statistic: m.RSDPct, Limit: m.MaxRSDPct, Computed: true, Passed: m.RSDPct <= m.MaxRSDPct,
 		Mandatory: pol.mandatory(CheckRFRSD), Source: "US EPA SW-846 Method 8000D: the average response factor may be used when the %RSD of the RFs is ≤ 20 % (from memory; the laboratory's method sets the limit)",

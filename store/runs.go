@@ -361,11 +361,13 @@ func (db *DB) GetRun(ctx context.Context, id string) (*lab.Run, error) {
 func readRun(ctx context.Context, tx pgx.Tx, id string) (*lab.Run, error) {
 	r := &lab.Run{ID: id, Standards: []lab.Standard{}, Samples: []lab.Sample{}, Curves: []lab.CurveRef{}}
 	var operator *string
-	var sequence []byte
+	var sequence, isResponses []byte
 	err := tx.QueryRow(ctx, `
-SELECT method, method_revision, instrument, acquired_at, operator, received_at, received_by, source_format, payload->'sequence'
+SELECT method, method_revision, instrument, acquired_at, operator, received_at, received_by, source_format, payload->'sequence',
+       (SELECT jsonb_agg(s.v->'is_responses' ORDER BY s.n) FROM jsonb_array_elements(payload->'standards') WITH ORDINALITY AS s(v, n)
+         WHERE EXISTS (SELECT 1 FROM jsonb_array_elements(payload->'standards') x WHERE x ? 'is_responses'))
 FROM runs WHERE id = $1`, id).Scan(&r.Method, &r.MethodRevision, &r.Instrument, &r.AcquiredAt, &operator,
-		&r.ReceivedAt, &r.ReceivedBy, &r.SourceFormat, &sequence)
+		&r.ReceivedAt, &r.ReceivedBy, &r.SourceFormat, &sequence, &isResponses)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, lab.Errorf(lab.KindNotFound, "run %s not found", id)
 	}
@@ -412,6 +414,10 @@ WHERE run_id = $1 ORDER BY standard, replicate`, id)
 	if err != nil {
 		return nil, classify("scan readings", err)
 	}
+	// The internal standard's responses are kept in the payload only.
+	if err := addISResponses(r, isResponses); err != nil {
+		return nil, err
+	}
 
 	rows, err = tx.Query(ctx, `SELECT sample_id, analyte, responses, dilution FROM run_samples WHERE run_id = $1 ORDER BY position`, id)
 	if err != nil {
@@ -439,4 +445,28 @@ WHERE run_id = $1 ORDER BY standard, replicate`, id)
 		return nil, classify("scan curves of run", err)
 	}
 	return r, nil
+}
+
+// addISResponses gives the run's standards their internal-standard
+// responses from the payload's lists (raw: a JSON array with each
+// standard's is_responses or null, in order; NULL when no standard has
+// any).
+func addISResponses(r *lab.Run, raw []byte) error {
+	var lists [][]float64
+	if len(raw) == 0 {
+		return nil
+	}
+	if err := json.Unmarshal(raw, &lists); err != nil {
+		return fmt.Errorf("store: decode the IS responses of run %s: %w", r.ID, err)
+	}
+	if len(lists) == 0 {
+		return nil
+	}
+	if len(lists) != len(r.Standards) {
+		return fmt.Errorf("store: run %s: %d standards, %d lists of IS responses", r.ID, len(r.Standards), len(lists))
+	}
+	for i := range r.Standards {
+		r.Standards[i].ISResponses = lists[i]
+	}
+	return nil
 }
