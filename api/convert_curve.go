@@ -25,6 +25,7 @@ func curveOut(c *lab.Curve) oapi.Curve {
 		WeightConvention:   r.WeightConvention,
 		ZeroHandling:       r.ZeroHandling,
 		Nonlinear:          nonlinearOut(r.Curve),
+		ResponseFactors:    responseFactorsOut(r.RF),
 		Coefficients:       nonNil(r.Coefficients),
 		StandardErrors:     nonNil(r.StandardErrors),
 		Covariance:         make([][]float64, 0, len(r.Covariance)),
@@ -165,6 +166,15 @@ func nonNilS(v []string) []string {
 		return []string{}
 	}
 	return v
+}
+
+// responseFactorsOut is the part of a curve only the average RF model has.
+func responseFactorsOut(rf *calib.RFDetails) *oapi.CurveResponseFactors {
+	if rf == nil {
+		return nil
+	}
+	return &oapi.CurveResponseFactors{Rfs: nonNil(rf.RFs), Levels: nonNilS(rf.Levels), Mean: rf.Mean, Sd: rf.SD,
+		RsdPct: rf.RSDPct, K: rf.K, MaxRsdPct: rf.MaxRSDPct, Blanks: rf.Blanks, Basis: rf.Basis, Source: rf.Source}
 }
 
 // nonlinearOut is the part of a curve only non-linear models have.

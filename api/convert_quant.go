@@ -14,13 +14,17 @@ func quantFrom(q *oapi.AnalyteQuant) lab.Quant {
 		return lab.Quant{}
 	}
 	out := lab.Quant{
-		InternalStandard:   string(zeroIfNil(q.InternalStandard)),
-		ISWindowLowPct:     zeroIfNil(q.IsWindowLowPct),
-		ISWindowHighPct:    zeroIfNil(q.IsWindowHighPct),
-		ReportingUnit:      string(zeroIfNil(q.ReportingUnit)),
-		ReportingLimit:     zeroIfNil(q.ReportingLimit),
-		DetectionLimit:     zeroIfNil(q.DetectionLimit),
-		SignificantFigures: zeroIfNil(q.SignificantFigures),
+		InternalStandard:         string(zeroIfNil(q.InternalStandard)),
+		ISWindowLowPct:           zeroIfNil(q.IsWindowLowPct),
+		ISWindowHighPct:          zeroIfNil(q.IsWindowHighPct),
+		ReportingUnit:            string(zeroIfNil(q.ReportingUnit)),
+		ReportingLimit:           zeroIfNil(q.ReportingLimit),
+		DetectionLimit:           zeroIfNil(q.DetectionLimit),
+		SignificantFigures:       zeroIfNil(q.SignificantFigures),
+		BlankLimitFractionOfLLOQ: zeroIfNil(q.BlankLimitFractionOfLloq),
+	}
+	if q.BlankSubtraction != nil {
+		out.BlankSubtraction = string(*q.BlankSubtraction)
 	}
 	if q.Decimals != nil {
 		out.Decimals, out.UseDecimals = *q.Decimals, true
@@ -79,6 +83,14 @@ func quantOut(a lab.Analyte) *oapi.AnalyteQuant {
 		OverRange: &oapi.ResultQualifier{Code: f.OverRange.Code, Words: f.OverRange.Words},
 		IsFailure: &oapi.ResultQualifier{Code: f.ISFailure.Code, Words: f.ISFailure.Words},
 	}
+	if q.BlankLimitFractionOfLLOQ > 0 {
+		out.BlankLimitFractionOfLloq = &q.BlankLimitFractionOfLLOQ
+	}
+	bs := oapi.BlankSubtractionNone
+	if q.BlankSubtraction != "" {
+		bs = oapi.AnalyteQuantBlankSubtraction(q.BlankSubtraction)
+	}
+	out.BlankSubtraction = &bs
 	return out
 }
 

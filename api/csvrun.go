@@ -28,8 +28,8 @@ const (
 	csvMaxEcho      = 64   // bytes of an offending cell quoted back in a detail
 
 	// csvMaxRows caps the data rows of one body. The schema's own limits
-	// allow 500 levels × 1000 readings + 1000 samples × 1000 readings =
-	// 1.5 million readings, more than any run needs and more than is safe to
+	// allow 1000 levels × 1000 readings + 1000 samples × 1000 readings =
+	// 2 million readings, more than any run needs and more than is safe to
 	// hold per request; 200,000 rows is the service's own cap for memory
 	// safety (a few MB of decoded values at most). The server's body limit
 	// (8 MiB by default) applies upstream as well.
@@ -49,10 +49,11 @@ const (
 	csvColResponse      = "response"
 	csvColSampleID      = "sample_id"
 	csvColDilution      = "dilution"
+	csvColISResponse    = "is_response"
 )
 
 // csvColumns lists every known column; the first five are required.
-var csvColumns = []string{csvColKind, csvColAnalyte, csvColLevel, csvColConcentration, csvColResponse, csvColSampleID, csvColDilution}
+var csvColumns = []string{csvColKind, csvColAnalyte, csvColLevel, csvColConcentration, csvColResponse, csvColSampleID, csvColDilution, csvColISResponse}
 
 const csvRequiredColumns = 5
 
@@ -285,13 +286,16 @@ func (l *csvLines) pointer(p string) string {
 	switch column {
 	case "id":
 		column = csvColSampleID
-	case "responses":
+	case "responses", "is_responses":
+		column = csvColResponse
+		if parts[2] == "is_responses" {
+			column = csvColISResponse
+		}
 		if len(parts) == 4 {
 			if j, err := strconv.Atoi(parts[3]); err == nil && j >= 0 && j < len(lines) {
-				return "/lines/" + strconv.Itoa(lines[j]) + "/" + csvColResponse
+				return "/lines/" + strconv.Itoa(lines[j]) + "/" + column
 			}
 		}
-		column = csvColResponse
 	}
 	return "/lines/" + strconv.Itoa(lines[0]) + "/" + column
 }
@@ -519,7 +523,8 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 				return true
 			}
 		}
-		if d.response(n, fields, &resp, failed) || mustBeEmpty(csvColSampleID, kind) || mustBeEmpty(csvColDilution, kind) {
+		isr, hasIS, stop := d.isResponse(fields, failed)
+		if stop || d.response(n, fields, &resp, failed) || mustBeEmpty(csvColSampleID, kind) || mustBeEmpty(csvColDilution, kind) {
 			return true
 		}
 		if bad {
@@ -541,6 +546,9 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 		if len(s.Responses) == fastResponsesMax {
 			return d.fail(n, csvColResponse, "more than %d readings for analyte %s level %s", fastResponsesMax, analyte, level)
 		}
+		if d.sameIS(n, &s.IsResponses, len(s.Responses), hasIS, isr, d.lines.standards[i], "analyte "+analyte+" level "+level) {
+			return true
+		}
 		s.Responses = append(s.Responses, resp)
 		d.stdConcs[i] = append(d.stdConcs[i], conc)
 		d.lines.standards[i] = append(d.lines.standards[i], n)
@@ -561,7 +569,8 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 			return true
 		}
 		var resp float64
-		if d.response(n, fields, &resp, failed) {
+		isr, hasIS, stop := d.isResponse(fields, failed)
+		if stop || d.response(n, fields, &resp, failed) {
 			return true
 		}
 		var dil *float64
@@ -601,6 +610,9 @@ func (d *csvRunDecoder) row(n int, fields []string) bool {
 		}
 		if len(s.Responses) == fastResponsesMax {
 			return d.fail(n, csvColResponse, "more than %d readings for analyte %s sample %s", fastResponsesMax, analyte, id)
+		}
+		if d.sameIS(n, &s.IsResponses, len(s.Responses), hasIS, isr, d.lines.samples[i], "analyte "+analyte+" sample "+id) {
+			return true
 		}
 		s.Responses = append(s.Responses, resp)
 		d.lines.samples[i] = append(d.lines.samples[i], n)
@@ -650,5 +662,40 @@ func (d *csvRunDecoder) response(n int, fields []string, v *float64, failed func
 		return failed(csvColResponse, "%v", err)
 	}
 	*v = r
+	return false
+}
+
+// isResponse parses the row's optional internal-standard reading (column
+// is_response; empty or absent: none); it reports the value, whether the
+// row has one, and whether decoding must stop.
+func (d *csvRunDecoder) isResponse(fields []string, failed func(string, string, ...any) bool) (float64, bool, bool) {
+	c, _ := d.cell(fields, csvColISResponse)
+	if c == "" {
+		return 0, false, false
+	}
+	r, err := parseCSVNumber(c, -fastResponseAbsMax, fastResponseAbsMax, false)
+	if err != nil {
+		return 0, false, failed(csvColISResponse, "%v", err)
+	}
+	return r, true, false
+}
+
+// sameIS appends the row's IS reading to a level's or sample's is_responses
+// (read so far: have readings, from lines); every reading of a group gives
+// one or none does. It reports whether decoding must stop.
+func (d *csvRunDecoder) sameIS(n int, is **oapi.Responses, have int, hasIS bool, v float64, lines []int, what string) bool {
+	if have > 0 && (*is != nil) != hasIS {
+		if hasIS {
+			return d.fail(n, csvColISResponse, "%s has no is_response on line %d: give it on every reading of a level or sample, or on none", what, lines[0])
+		}
+		return d.fail(n, csvColISResponse, "required: %s has an is_response on line %d; give it on every reading of a level or sample, or on none", what, lines[0])
+	}
+	if !hasIS {
+		return false
+	}
+	if *is == nil {
+		*is = &oapi.Responses{}
+	}
+	**is = append(**is, v)
 	return false
 }

@@ -291,9 +291,9 @@ func TestDecodeCSVRunRefuses(t *testing.T) {
 			[]string{"/lines/1003/response"},
 		},
 		{
-			"more than 500 levels",
-			csvRows(501, func(i int) string { return fmt.Sprintf("standard,a,L%d,1,0.5,,", i) }),
-			[]string{"/lines/502/level"},
+			"more than 1000 levels",
+			csvRows(1001, func(i int) string { return fmt.Sprintf("standard,a,L%d,1,0.5,,", i) }),
+			[]string{"/lines/1002/level"},
 		},
 		{
 			"more than 1000 samples",

@@ -46,7 +46,11 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 			return nil, lab.FieldError(lab.Pointer("analytes", i, "name"), "analyte %q is listed twice", a.Name)
 		}
 		seen[string(a.Name)] = true
-		in.Analytes = append(in.Analytes, lab.Analyte{Name: string(a.Name), Unit: string(a.Unit), Quant: quantFrom(a.Quant)})
+		an := lab.Analyte{Name: string(a.Name), Unit: string(a.Unit), Quant: quantFrom(a.Quant)}
+		if a.Model != nil {
+			an.Model = calib.Model(*a.Model)
+		}
+		in.Analytes = append(in.Analytes, an)
 	}
 	m, created, err := s.lab.DefineMethod(ctx, p, in)
 	if err != nil {
@@ -110,6 +114,7 @@ func policyFrom(a *oapi.AcceptanceInput) calib.Policy {
 	setF(&p.BackCalcTolerancePct, a.BackCalcTolerancePct)
 	setF(&p.BackCalcMinPassFraction, a.BackCalcMinPassFraction)
 	setF(&p.MaxRSEPct, a.MaxRsePct)
+	setF(&p.MaxRFRSDPct, a.MaxRfRsdPct)
 	setF(&p.MinRSquared, a.MinRSquared)
 	setF(&p.OutlierCooksD, a.OutlierCooksD)
 	setF(&p.OutlierStudentized, a.OutlierStudentized)
@@ -179,6 +184,7 @@ func methodOut(m *lab.Method) oapi.Method {
 			Mandatory:                mandatory,
 			MandelAlpha:              pol.MandelAlpha,
 			MaxRsePct:                pol.MaxRSEPct,
+			MaxRfRsdPct:              pol.RFRSDLimit(),
 			MinLevels:                pol.MinLevels,
 			MinRSquared:              pol.MinRSquared,
 			OutlierCooksD:            pol.OutlierCooksD,
@@ -204,7 +210,12 @@ func methodOut(m *lab.Method) oapi.Method {
 		out.ExpiredStandards = &adv
 	}
 	for _, a := range m.Analytes {
-		out.Analytes = append(out.Analytes, oapi.Analyte{Name: oapi.Identifier(a.Name), Unit: oapi.Unit(a.Unit), Quant: quantOut(a)})
+		oa := oapi.Analyte{Name: oapi.Identifier(a.Name), Unit: oapi.Unit(a.Unit), Quant: quantOut(a)}
+		if a.Model != "" {
+			mo := oapi.Model(a.Model)
+			oa.Model = &mo
+		}
+		out.Analytes = append(out.Analytes, oa)
 	}
 	return out
 }

@@ -104,6 +104,8 @@ func parameterUnit(param, unit string) string {
 		return "response per " + unit
 	case lab.ParamIntercept, lab.ParamResidualSD:
 		return "response"
+	case lab.ParamISResponse:
+		return "IS response"
 	case lab.ParamLOD:
 		return unit
 	}

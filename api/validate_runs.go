@@ -26,7 +26,7 @@ const (
 
 	headerIdempotencyKey = "Idempotency-Key"
 
-	fastStandardsMax     = 500                      // RunRequest.standards maxItems (minItems 1)
+	fastStandardsMax     = 1000                     // RunRequest.standards maxItems (minItems 1)
 	fastRunSamplesMax    = 1000                     // RunRequest.samples maxItems (no minItems)
 	fastOperatorMax      = 128                      // Operator maxLength (pattern ^[A-Za-z0-9][A-Za-z0-9._:@-]{0,127}$)
 	fastConcentrationMax = 1.0e12                   // Concentration minimum 0, maximum 1e12

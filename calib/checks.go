@@ -27,7 +27,7 @@ func checkSource(name string, m Model) string {
 	case CheckRSE:
 		return "US EPA SW-846 Method 8000D: relative standard error RSE = 100·√{Σ[(x'−x)/x]²/(n−p)} ≤ 20 %"
 	case CheckIntercept:
-		if m == LinearOrigin {
+		if originLine(m) {
 			return "Student t-test of the intercept of the unconstrained line (whether the origin model is justified; Raposo, TrAC 77 (2016) 167)"
 		}
 		return "Student t-test of the intercept against zero (e.g. Miller & Miller, Statistics and Chemometrics for Analytical Chemistry, ch. 5)"
@@ -207,7 +207,7 @@ func mandelCheck(r *Report, d *dataset, des *design, f lsq, sspe float64, nf noi
 	default:
 		t.s(": a quadratic does not fit significantly better; the response is linear over this range.")
 	}
-	if r.Model == LinearOrigin {
+	if originLine(r.Model) {
 		t.s(" (Tested on the line with intercept, which shows the curvature of the readings.)")
 	}
 	c.Passed = better == (r.Model == Quadratic)
@@ -436,7 +436,7 @@ func rSquaredCheck(r *Report, pol Policy, t *text) Check {
 	}
 	t.s(" against a minimum of ").g(pol.MinRSquared)
 	switch {
-	case r.Model == LinearOrigin:
+	case originLine(r.Model):
 		t.s(" (uncentred R² of the origin model, which is larger than a centred one)")
 	case r.Weighting != WeightNone:
 		t.s(" (weighted)")
@@ -485,7 +485,7 @@ func rseCheck(r *Report, d *dataset, pol Policy, t *text) Check {
 // the floor).
 func interceptCheck(r *Report, d *dataset, des *design, f lsq, nf noise, pol Policy, t *text) Check {
 	b0, v0, df, exact := 0.0, 0.0, f.df, nf.exact
-	if r.Model == LinearOrigin {
+	if originLine(r.Model) {
 		if des.k < 2 {
 			return notComputed(CheckIntercept, "the line with intercept needs three or more readings")
 		}
@@ -501,14 +501,14 @@ func interceptCheck(r *Report, d *dataset, des *design, f lsq, nf noise, pol Pol
 	if exact {
 		c := Check{Name: CheckIntercept, Statistic: b0, Limit: nf.floor, Computed: true, Passed: math.Abs(b0) <= nf.floor}
 		t.s(exactFitText).s(", so the intercept ")
-		if r.Model == LinearOrigin {
+		if originLine(r.Model) {
 			t.s("of the unconstrained line ")
 		}
 		t.s("b0 = ").g(b0).s(" has no random error to test against")
 		switch {
 		case c.Passed:
 			t.s(": it is zero within rounding (").g(nf.floor).s(").")
-		case r.Model == LinearOrigin:
+		case originLine(r.Model):
 			t.s(": it is not zero, so forcing the curve through the origin is not justified.")
 		default:
 			t.s(": it is not zero (blank contribution or matrix effect); review the blank.")
@@ -523,7 +523,7 @@ func interceptCheck(r *Report, d *dataset, des *design, f lsq, nf noise, pol Pol
 	tc := studentT(1-pol.InterceptAlpha/2, df)
 	c := Check{Name: CheckIntercept, Statistic: ts, Limit: tc, Computed: true, Passed: math.Abs(ts) <= tc}
 	t.s("Intercept ")
-	if r.Model == LinearOrigin {
+	if originLine(r.Model) {
 		t.s("of the unconstrained line ")
 	}
 	t.g(b0).s(" ± ").g(se).s(" (SE), t = ").g(ts)
@@ -536,7 +536,7 @@ func interceptCheck(r *Report, d *dataset, des *design, f lsq, nf noise, pol Pol
 	switch {
 	case c.Passed:
 		t.s(": the intercept does not differ significantly from zero.")
-	case r.Model == LinearOrigin:
+	case originLine(r.Model):
 		t.s(": the intercept differs significantly from zero, so forcing the curve through the origin is not justified.")
 	default:
 		t.s(": the intercept differs significantly from zero (blank contribution or matrix effect); review the blank.")

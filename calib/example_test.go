@@ -109,5 +109,5 @@ func ExampleDefaultPolicy() {
 	p := calib.DefaultPolicy()
 	fmt.Println(p.MinLevels, p.BackCalcTolerancePct, p.BackCalcLowTolerancePct, p.MinRSquared, p.Mandatory)
 	// Output:
-	// 6 15 20 0.99 [min_levels back_calculation r_squared mandel monotonic]
+	// 6 15 20 0.99 [min_levels back_calculation r_squared mandel monotonic rf_rsd]
 }

@@ -48,7 +48,7 @@ type level struct {
 // nParams returns p, the number of coefficients of the model.
 func nParams(m Model) int {
 	switch m {
-	case LinearOrigin:
+	case LinearOrigin, AverageRF:
 		return 1
 	case Quadratic:
 		return 3
@@ -78,6 +78,9 @@ func Fit(points []Point, opt Options) (*Report, error) {
 	}
 	if err := opt.Curve.Check(opt.Model); err != nil {
 		return nil, err
+	}
+	if opt.Model == AverageRF {
+		return fitAverageRFReport(points, opt)
 	}
 	opt, err := resolveOptions(opt)
 	if err != nil {
@@ -475,7 +478,7 @@ func lineForScore(m Model, x, y, w []float64, out *[2]float64) bool {
 		b1 := sxy / sxx
 		out[0], out[1] = ym-b1*xm, b1
 		return true
-	case LinearOrigin:
+	case LinearOrigin, AverageRF:
 		var sxx, sxy float64
 		for i := range x {
 			sxx += w[i] * x[i] * x[i]

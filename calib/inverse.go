@@ -16,7 +16,7 @@ import (
 // false when that branch has no root (D < 0) or b1 = 0 for a line.
 func invertCurve(m Model, c []float64, lo, hi, y float64) (x, sens float64, ok bool) {
 	switch m {
-	case LinearOrigin:
+	case LinearOrigin, AverageRF:
 		if c[0] == 0 {
 			return 0, 0, false
 		}
@@ -146,8 +146,10 @@ func (r *Report) Predict(responses []float64, dilution float64, confidence float
 	t := studentT(1-(1-confidence)/2, r.DF)
 	var x0 float64
 	ok := false
-	switch r.Model {
-	case Quadratic:
+	switch {
+	case r.Model == AverageRF && r.RF != nil:
+		x0, ok = r.predictRF(y0, m, t, &pr)
+	case r.Model == Quadratic:
 		x0, ok = r.predictQuadratic(y0, m, t, &pr)
 	default:
 		x0, ok = r.predictLine(y0, m, t, &pr)
@@ -199,7 +201,7 @@ func (r *Report) predictLine(y0 float64, m int, t float64, pr *Prediction) (floa
 	w0 := r.unknownWeight(x0, y0)
 	ab := math.Abs(b1)
 	var xbar, sxx, inv float64 // x̄w, Sxx,w and the 1/Σw term
-	if r.Model == LinearOrigin {
+	if originLine(r.Model) {
 		xbar, sxx, inv = 0, r.SumWX2, 0
 		pr.Method = "fieller_origin"
 	} else {
@@ -325,7 +327,7 @@ func (r *Report) predictable() error {
 	}
 	p := 0
 	switch r.Model {
-	case Linear, LinearOrigin, Quadratic:
+	case Linear, LinearOrigin, AverageRF, Quadratic:
 		p = nParams(r.Model)
 	case FourPL, FivePL, Power, ExpSaturation, ExpSaturationOffset:
 		p = curveOf(r.Model).NumParams()
@@ -374,7 +376,7 @@ func (r *Report) predictable() error {
 		if !(r.SxxW > 0) || !(r.SumW > 0) || !fin(r.SxxW) || !fin(r.SumW) || !fin(r.MeanXW) {
 			return inputErr("report.sxx_w", "weighted sums must be finite and > 0")
 		}
-	case LinearOrigin:
+	case LinearOrigin, AverageRF:
 		if !(r.SumWX2 > 0) || !fin(r.SumWX2) {
 			return inputErr("report.sum_wx2", "must be finite and > 0")
 		}
@@ -395,6 +397,9 @@ func (r *Report) predictable() error {
 	}
 	if !fin(r.Range.Low) || !fin(r.Range.High) {
 		return inputErr("report.range", "not finite")
+	}
+	if r.Model == AverageRF && (r.RF == nil || !(r.RF.Mean > 0) || !fin(r.RF.Mean) || !fin(r.RF.SD) || r.RF.K < 2) {
+		return inputErr("report.rf", "the average RF model needs its response factors (mean > 0, at least two)")
 	}
 	return nil
 }

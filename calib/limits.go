@@ -24,7 +24,7 @@ func computeLimits(r *Report, f lsq, wo WeightOptions, t *text) Limits {
 	c := r.Coefficients
 	var b0, slope float64
 	switch r.Model {
-	case LinearOrigin:
+	case LinearOrigin, AverageRF:
 		slope = c[0]
 	case Quadratic:
 		b0, slope = c[0], c[1]+2*c[2]*r.Range.Low
@@ -46,7 +46,7 @@ func computeLimits(r *Report, f lsq, wo WeightOptions, t *text) Limits {
 		q = sigma / s
 	}
 	rr := q
-	if r.Model != LinearOrigin {
+	if !originLine(r.Model) {
 		rr = math.Sqrt(q*q + f.xtwx[0])
 	}
 	tq := studentT(0.95, r.DF)
@@ -78,7 +78,7 @@ func computeLimits(r *Report, f lsq, wo WeightOptions, t *text) Limits {
 	if r.Weighting != WeightNone || ls.basis == SigmaBlank {
 		t.s(" near the low end; with weights or a blank SD these limits are approximations")
 	}
-	if r.Model == LinearOrigin {
+	if originLine(r.Model) {
 		t.s("; the origin model takes the blank response as exactly 0")
 	}
 	t.s(".")

@@ -20,7 +20,7 @@ func workingRange(levels []level) Range {
 // slopeAt returns the sensitivity f'(x) of the model's curve.
 func slopeAt(m Model, c []float64, x float64) float64 {
 	switch m {
-	case LinearOrigin:
+	case LinearOrigin, AverageRF:
 		return c[0]
 	case Quadratic:
 		return c[1] + 2*c[2]*x

@@ -8,7 +8,7 @@ import "math"
 func (r *Report) Slope() (b1 float64, ok bool) {
 	c := r.Coefficients
 	switch {
-	case r.Model == LinearOrigin && len(c) == 1:
+	case originLine(r.Model) && len(c) == 1:
 		return c[0], true
 	case (r.Model == Linear && len(c) == 2) || (r.Model == Quadratic && len(c) == 3):
 		return c[1], true
@@ -33,7 +33,7 @@ func NumParams(m Model) int {
 	switch m {
 	case Linear:
 		return 2
-	case LinearOrigin:
+	case LinearOrigin, AverageRF:
 		return 1
 	case Quadratic:
 		return 3
@@ -48,7 +48,7 @@ func Terms(m Model) []string {
 	switch m {
 	case Linear:
 		return []string{"", "·x"}
-	case LinearOrigin:
+	case LinearOrigin, AverageRF:
 		return []string{"·x"}
 	case Quadratic:
 		return []string{"", "·x", "·x²"}

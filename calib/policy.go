@@ -24,13 +24,16 @@ import (
 //     level), at least 75 % of the standards passing.
 //   - MinRSquared 0.99: US EPA SW-846 Method 8000D (r ≥ 0.995, r² ≥ 0.99).
 //   - MaxRSEPct 20: US EPA SW-846 Method 8000D relative standard error.
+//   - MaxRFRSDPct 20: the average response factor model's %RSD of the RFs
+//     (US EPA SW-846 Method 8000D, from memory; DefaultRFMaxRSDPct).
 //   - InterceptAlpha 0.05, RunsAlpha 0.05: conventional significance levels.
 //   - OutlierStudentized 3: |internally studentised residual| > 3 is an
 //     outlier (common practice; > 2 is only suspect).
 //   - OutlierCooksD 1: Cook's distance > 1 is influential (common practice).
 //
-// Mandatory by default: min_levels, back_calculation, r_squared, mandel and
-// monotonic. The first three are the acceptance criteria the cited guidance
+// Mandatory by default: min_levels, back_calculation, r_squared, mandel,
+// monotonic and rf_rsd (computed for the average RF model only, whose
+// linearity check it is). The first three are the acceptance criteria the cited guidance
 // states for a calibration run (ICH M10 levels and back-calculation, EPA
 // 8000D r²), Mandel's test is ISO 8466-1's rule for whether the chosen model
 // may be used at all, and a curve that is not strictly monotonic over its
@@ -52,11 +55,12 @@ func DefaultPolicy() Policy {
 		BackCalcMinPassFraction: 0.75,
 		MinRSquared:             0.99,
 		MaxRSEPct:               20,
+		MaxRFRSDPct:             DefaultRFMaxRSDPct,
 		InterceptAlpha:          0.05,
 		RunsAlpha:               0.05,
 		OutlierStudentized:      3,
 		OutlierCooksD:           1,
-		Mandatory:               []string{CheckMinLevels, CheckBackCalculation, CheckRSquared, CheckMandel, CheckMonotonic},
+		Mandatory:               []string{CheckMinLevels, CheckBackCalculation, CheckRSquared, CheckMandel, CheckMonotonic, CheckRFRSD},
 	}
 }
 
@@ -108,6 +112,7 @@ func (p Policy) validate() error {
 		{"options.policy.back_calc_tolerance_pct", p.BackCalcTolerancePct},
 		{"options.policy.back_calc_low_tolerance_pct", p.BackCalcLowTolerancePct},
 		{"options.policy.max_rse_pct", p.MaxRSEPct},
+		{"options.policy.max_rf_rsd_pct", p.MaxRFRSDPct},
 		{"options.policy.outlier_studentized", p.OutlierStudentized},
 		{"options.policy.outlier_cooks_d", p.OutlierCooksD},
 	}
@@ -126,7 +131,7 @@ func (p Policy) validate() error {
 		return inputErr("options.policy.min_levels", "must be at least 1, got %d", p.MinLevels)
 	}
 	for i, name := range p.Mandatory {
-		known := name == CheckDrift // computed at ingest against history, see DriftCheck
+		known := name == CheckDrift || name == CheckRFRSD // drift: computed at ingest against history, see DriftCheck
 		for _, c := range checkNames {
 			if name == c {
 				known = true

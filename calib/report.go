@@ -207,7 +207,7 @@ func fitDesign(des *design, m Model, d *dataset, w []float64) (lsq, error) {
 		ext = []int{0, 1, 2}
 	case n >= 4 && k >= 3:
 		ext = []int{1, 0, 2}
-	case n >= 3 && m == LinearOrigin:
+	case n >= 3 && originLine(m):
 		ext = []int{1, 0}
 	default:
 		ext = powers(m)

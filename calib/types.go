@@ -172,6 +172,7 @@ type Policy struct {
 	BackCalcMinPassFraction float64 // fraction of standards that must pass (ICH M10: 0.75)
 	MinRSquared             float64 // (US EPA SW-846 8000D: 0.99)
 	MaxRSEPct               float64 // relative standard error (US EPA SW-846 8000D: 20)
+	MaxRFRSDPct             float64 // %RSD of the response factors of the average RF model; 0: DefaultRFMaxRSDPct
 	InterceptAlpha          float64 // significance of the intercept t-test
 	RunsAlpha               float64 // residual sign runs test significance
 	OutlierStudentized      float64 // |internally studentised residual| above which a reading is an outlier (3)
@@ -238,6 +239,9 @@ type Report struct {
 	// outcome, θ, precision profile, anchors); nil for the least-squares
 	// models.
 	Curve *CurveDetails `json:",omitempty"`
+	// RF holds the response factors of the average RF model (AverageRF);
+	// nil for every other model.
+	RF *RFDetails `json:",omitempty"`
 }
 
 // WeightScore is one candidate of automatic weight selection.

@@ -286,7 +286,7 @@ func (r *Report) CalibrationTerm(name string, responses []float64, dilution floa
 	}
 	t := UncertaintyTerm{Name: name, Source: SourceCalibration, Kind: DistNormal, Value: pr.Concentration,
 		StdUncertainty: pr.StandardError, DF: float64(r.DF)}
-	if r.Model == Linear || r.Model == LinearOrigin {
+	if r.Model == Linear || originLine(r.Model) {
 		x0 := pr.Concentration / pr.Dilution
 		w0 := r.unknownWeight(x0, pr.MeanResponse)
 		cd := &CurveDraw{DF: float64(r.DF), MeanY: pr.MeanResponse, Dilution: pr.Dilution, Readings: pr.Readings, ResidualSD: r.ResidualSD,

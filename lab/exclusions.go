@@ -182,7 +182,7 @@ func (s *Service) Exclude(ctx context.Context, p Principal, c *Curve, points []E
 	if err != nil {
 		return "", err
 	}
-	opts := m.Options()
+	opts := m.OptionsFor(c.Analyte)
 	rep, err := calib.Fit(fitPts, opts)
 	if err != nil {
 		var ie *calib.InputError

@@ -145,13 +145,13 @@ func fitRun(m *Method, in *RunInput) ([]CurveInput, error) {
 			return nil, err
 		}
 	}
-	if err := checkSequence(in.Sequence, in.Samples); err != nil {
+	if err := checkSequence(m, in.Sequence, in.Samples); err != nil {
 		return nil, err
 	}
-	opts := m.Options()
 	curves := make([]CurveInput, 0, len(order))
 	for _, a := range order {
 		an, _ := m.Analyte(a)
+		opts := m.OptionsFor(a)
 		rep, err := calib.Fit(points[a], opts)
 		if err != nil {
 			var ie *calib.InputError

@@ -20,6 +20,9 @@ type Analyte struct {
 	// (lab/quant.go); zero for an external-standard analyte reported as
 	// x̂0.
 	Quant Quant `json:"quant,omitzero"`
+	// Model, when set, fits this analyte with another model than the
+	// method's (for instance calib.AverageRF); "" takes the method's.
+	Model calib.Model `json:"model,omitempty"`
 }
 
 // MethodInput is a method as an administrator defines it. Acceptance must be
@@ -68,6 +71,16 @@ func (m *Method) Options() calib.Options {
 	return calib.Options{Model: m.Model, Weighting: m.Weighting, Confidence: m.Confidence, Policy: m.Acceptance, Weights: m.Weights, Curve: m.Curve}
 }
 
+// OptionsFor returns the engine options analyte name is fitted with: the
+// method's, with the analyte's own model when it names one.
+func (m *Method) OptionsFor(name string) calib.Options {
+	o := m.Options()
+	if a, ok := m.Analyte(name); ok && a.Model != "" {
+		o.Model = a.Model
+	}
+	return o
+}
+
 // Analyte returns the method's analyte called name.
 func (m *Method) Analyte(name string) (Analyte, bool) {
 	for _, a := range m.Analytes {
@@ -79,7 +92,7 @@ func (m *Method) Analyte(name string) (Analyte, bool) {
 }
 
 var (
-	models     = append([]calib.Model{calib.Linear, calib.LinearOrigin, calib.Quadratic}, calib.CurveModels()...)
+	models     = append([]calib.Model{calib.Linear, calib.LinearOrigin, calib.Quadratic, calib.AverageRF}, calib.CurveModels()...)
 	weightings = calib.Weightings()
 )
 
@@ -102,15 +115,8 @@ func CheckMethod(in MethodInput) error {
 	if strings.TrimSpace(in.Name) == "" || len(in.Name) > MaxNameLen {
 		return FieldError("/name", "name must be 1 to %d characters", MaxNameLen)
 	}
-	if !slices.Contains(models, in.Model) {
-		return FieldError("/model", "unknown model %q", in.Model)
-	}
-	if calib.IsCurveModel(in.Model) {
-		if !slices.Contains(calib.CurveWeightings(), in.Weighting) {
-			return FieldError("/weighting", "the non-linear model %s takes the weighting none, 1/y^2, 1/s^2 or power_of_mean, not %q", in.Model, in.Weighting)
-		}
-	} else if !slices.Contains(weightings, in.Weighting) {
-		return FieldError("/weighting", "unknown weighting %q", in.Weighting)
+	if err := checkModelWeighting("/model", in.Model, in.Weighting); err != nil {
+		return err
 	}
 	if !(in.Confidence > 0 && in.Confidence < 1) {
 		return FieldError("/confidence", "confidence must be between 0 and 1, exclusive")
@@ -132,6 +138,11 @@ func CheckMethod(in MethodInput) error {
 		seen[a.Name] = true
 		if err := checkAnalyteQuant(i, a); err != nil {
 			return err
+		}
+		if a.Model != "" {
+			if err := checkModelWeighting(fmt.Sprintf("/analytes/%d/model", i), a.Model, in.Weighting); err != nil {
+				return err
+			}
 		}
 	}
 	if err := in.QC.Check(); err != nil {
@@ -155,6 +166,23 @@ func CheckMethod(in MethodInput) error {
 		if f := v.Field(i); f.Kind() == reflect.Float64 && (math.IsNaN(f.Float()) || math.IsInf(f.Float(), 0)) {
 			return FieldError("/acceptance", "%s must be a finite number", v.Type().Field(i).Name)
 		}
+	}
+	return nil
+}
+
+// checkModelWeighting refuses an unknown model, or a weighting the model
+// does not take; p points at the model. The average RF model weights by
+// 1/x² whatever the method names (its mean RF is that line's slope).
+func checkModelWeighting(p string, model calib.Model, w calib.Weighting) error {
+	if !slices.Contains(models, model) {
+		return FieldError(p, "unknown model %q", model)
+	}
+	if calib.IsCurveModel(model) {
+		if !slices.Contains(calib.CurveWeightings(), w) {
+			return FieldError("/weighting", "the non-linear model %s takes the weighting none, 1/y^2, 1/s^2 or power_of_mean, not %q", model, w)
+		}
+	} else if !slices.Contains(weightings, w) {
+		return FieldError("/weighting", "unknown weighting %q", w)
 	}
 	return nil
 }

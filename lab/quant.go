@@ -7,6 +7,7 @@ import (
 
 	"curvekeeper/calib"
 	"curvekeeper/lab/reported"
+	"curvekeeper/lab/sequence"
 	"curvekeeper/lab/ucum"
 )
 
@@ -34,6 +35,16 @@ type Quant struct {
 	Decimals           int          `json:"decimals,omitzero"`
 	UseDecimals        bool         `json:"use_decimals,omitzero"`
 	Qualifiers         QualifierSet `json:"qualifiers,omitzero"`
+
+	// BlankLimitFractionOfLLOQ: a blank of the run's sequence judged here
+	// (calibration blank, method blank, CCB) passes when |x̂0| ≤ this
+	// fraction of the LLOQ, the curve's lowest non-zero standard; 0: when
+	// |x̂0| ≤ the reporting limit (converted to the analyte's unit).
+	BlankLimitFractionOfLLOQ float64 `json:"blank_limit_fraction_of_lloq,omitzero"`
+	// BlankSubtraction is what is subtracted from each sample's x̂0 in the
+	// sequence's record: "" or "none", or "mean_method_blank" (the mean x̂0
+	// of the batch's method blanks).
+	BlankSubtraction string `json:"blank_subtraction,omitempty"`
 }
 
 // QualifierSet is a method's qualifier codes and words; an empty entry takes
@@ -105,6 +116,14 @@ func checkAnalyteQuant(i int, a Analyte) error {
 	}
 	if q.DetectionLimit > 0 && q.ReportingLimit > 0 && q.DetectionLimit > q.ReportingLimit {
 		return FieldError(p+"/detection_limit", "detection limit %g exceeds the reporting limit %g", q.DetectionLimit, q.ReportingLimit)
+	}
+	if !calib.Finite(q.BlankLimitFractionOfLLOQ) || q.BlankLimitFractionOfLLOQ < 0 || q.BlankLimitFractionOfLLOQ > 10 {
+		return FieldError(p+"/blank_limit_fraction_of_lloq", "the blank limit must be a fraction of the LLOQ from 0 to 10")
+	}
+	switch q.BlankSubtraction {
+	case "", string(sequence.SubtractNone), string(sequence.SubtractMeanMethodBlank):
+	default:
+		return FieldError(p+"/blank_subtraction", "blank subtraction must be none or mean_method_blank, got %q", q.BlankSubtraction)
 	}
 	if q.SignificantFigures < 0 || q.SignificantFigures > 15 {
 		return FieldError(p+"/significant_figures", "significant figures must be 1 to 15")

@@ -50,11 +50,16 @@ func (s *Service) Recalculate(ctx context.Context, id string) (*Recalculation, e
 		return nil, err
 	}
 	var pts []calib.Point
+	an, _ := m.Analyte(c.Analyte)
 	for _, st := range run.Standards {
 		if st.Analyte != c.Analyte {
 			continue
 		}
-		for _, y := range st.Responses {
+		ys, err := isRatios(an, st.Responses, st.ISResponses, "")
+		if err != nil { // the run was refused at ingest unless its IS responses fit the method
+			ys = st.Responses
+		}
+		for _, y := range ys {
 			pts = append(pts, calib.Point{Level: st.Level, X: st.Concentration, Y: y})
 		}
 	}
@@ -68,7 +73,7 @@ func (s *Service) Recalculate(ctx context.Context, id string) (*Recalculation, e
 	for i := range pts {
 		pts[i].Excluded = stored.Points[i].Excluded
 	}
-	opts := m.Options()
+	opts := m.OptionsFor(c.Analyte)
 	rep, err := calib.Fit(pts, opts)
 	if err != nil {
 		var ie *calib.InputError

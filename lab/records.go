@@ -44,6 +44,7 @@ type CurveSummary struct {
 	// Coefficients of a converged non-linear curve in its model's order
 	// (calib.ParameterNames), read for trends only; nil otherwise.
 	Coefficients []float64
+	ISResponse   *float64 // mean IS response of the calibrators; nil without an IS
 	// FailedChecks names the checks that did not pass, mandatory or advisory.
 	FailedChecks []string
 }
@@ -229,6 +230,8 @@ func (c *CurveSummary) ParamValue(p string) (float64, bool) {
 		v = c.RSquared
 	case ParamLOD:
 		v = c.LOD
+	case ParamISResponse:
+		v = c.ISResponse
 	}
 	if i := slices.Index(calib.ParameterNames(c.Model), p); v == nil && i >= 0 && i < len(c.Coefficients) {
 		v = &c.Coefficients[i]
@@ -319,10 +322,14 @@ const (
 	ParamD  = "d"
 	ParamG  = "g"
 	ParamY0 = "y0"
+	// ParamISResponse is the mean internal-standard response of the
+	// curve's calibrators (none without an internal standard): a falling
+	// series shows the instrument losing sensitivity before the ratios do.
+	ParamISResponse = "is_response"
 )
 
 // TrendParameters lists the parameters in a fixed order.
-var TrendParameters = []string{ParamSlope, ParamIntercept, ParamResidualSD, ParamRSquared, ParamLOD,
+var TrendParameters = []string{ParamSlope, ParamIntercept, ParamResidualSD, ParamRSquared, ParamLOD, ParamISResponse,
 	ParamA, ParamB, ParamC, ParamD, ParamG, ParamY0}
 
 // MaxTrendPoints bounds the curves one trend reads.

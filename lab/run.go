@@ -188,6 +188,8 @@ type Run struct {
 	Samples        []Sample
 	Curves         []CurveRef
 	Materials      []string // the standard materials the run named
+	// Sequence is the run's injection order as posted; nil without one.
+	Sequence *RunSequence
 }
 
 // CurveRef names one curve of a run.

@@ -23,7 +23,7 @@ import (
 
 const curveColumns = `id, run_id, revision_of, method, method_revision, instrument, analyte, unit, model, weighting,
 verdict, status, engine_version, acquired_at, created_at, created_by, reviewed_at, reviewed_by,
-slope, intercept, residual_sd, r_squared, lod, failed_checks`
+slope, intercept, residual_sd, r_squared, lod, failed_checks, is_response`
 
 func scanCurveSummary(row pgx.Row, extra ...any) (lab.CurveSummary, error) {
 	var (
@@ -34,7 +34,7 @@ func scanCurveSummary(row pgx.Row, extra ...any) (lab.CurveSummary, error) {
 	dest := append([]any{&c.ID, &c.RunID, &revisionOf, &c.Method, &c.MethodRevision, &c.Instrument, &c.Analyte,
 		&c.Unit, &model, &weighting, &c.Verdict, &c.Status, &c.EngineVersion, &c.AcquiredAt, &c.CreatedAt,
 		&c.CreatedBy, &c.ReviewedAt, &reviewer, &c.Slope, &c.Intercept, &c.ResidualSD, &c.RSquared, &c.LOD,
-		&c.FailedChecks}, extra...)
+		&c.FailedChecks, &c.ISResponse}, extra...)
 	if err := row.Scan(dest...); err != nil {
 		return lab.CurveSummary{}, err
 	}

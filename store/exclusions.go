@@ -67,8 +67,10 @@ SELECT run_id, method, method_revision, instrument, analyte, unit, acquired_at F
 		revID = pc.id
 		_, err = tx.Exec(ctx, `
 INSERT INTO curves (id, run_id, revision_of, method, method_revision, instrument, analyte, unit, model, weighting, verdict,
-                    engine_version, report, acquired_at, created_by, slope, intercept, residual_sd, r_squared, lod, failed_checks)
-VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19, $20, $21)`,
+                    engine_version, report, acquired_at, created_by, slope, intercept, residual_sd, r_squared, lod, failed_checks,
+                    is_response)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19, $20, $21,
+        (SELECT is_response FROM curves WHERE id = $3))`,
 			pc.id, runID, origID, method, revision, instrument, analyte, unit, pc.model, pc.weighting, pc.verdict,
 			pc.engine, pc.report, acquired, in.Actor, pc.scalars.slope, pc.scalars.intercept, pc.scalars.residualSD,
 			pc.scalars.rSquared, pc.scalars.lod, pc.failed)

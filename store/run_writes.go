@@ -199,16 +199,16 @@ FROM unnest($1::text[], $2::text[], $3::text[], $4::int[], $5::int[], $6::float8
 	sqlGroupInsertCurves = `
 INSERT INTO curves (id, run_id, method, method_revision, instrument, analyte, unit, model, weighting, verdict,
                     engine_version, report, acquired_at, created_by, slope, intercept, residual_sd, r_squared, lod,
-                    failed_checks)
+                    failed_checks, is_response)
 SELECT u.id::uuid, u.run_id::uuid, u.method, u.method_revision, u.instrument, u.analyte, u.unit, u.model, u.weighting, u.verdict,
        u.engine_version, u.report, u.acquired_at, u.created_by, u.slope, u.intercept, u.residual_sd, u.r_squared, u.lod,
-       ARRAY(SELECT json_array_elements_text(u.failed))
+       ARRAY(SELECT json_array_elements_text(u.failed)), u.is_response
 FROM unnest($1::text[], $2::text[], $3::text[], $4::int[], $5::text[], $6::text[], $7::text[], $8::text[], $9::text[],
             $10::text[], $11::text[], $12::json[], $13::timestamptz[], $14::text[], $15::float8[], $16::float8[],
-            $17::float8[], $18::float8[], $19::float8[], $20::json[])
+            $17::float8[], $18::float8[], $19::float8[], $20::json[], $21::float8[])
      WITH ORDINALITY AS u(id, run_id, method, method_revision, instrument, analyte, unit, model, weighting, verdict,
                           engine_version, report, acquired_at, created_by, slope, intercept, residual_sd, r_squared,
-                          lod, failed, n)
+                          lod, failed, is_response, n)
 ORDER BY u.n`
 	sqlGroupInsertAudit = `
 INSERT INTO audit (actor, action, entity_type, entity_id, detail)
@@ -249,7 +249,7 @@ func runRows(group []*runWrite, claims bool) (*pgx.Batch, error) {
 		cRevisions                                       []int32
 		cReports                                         [][]byte
 		cAt                                              []time.Time
-		cSlope, cIntercept, cSD, cR2, cLOD               []*float64
+		cSlope, cIntercept, cSD, cR2, cLOD, cIS          []*float64
 		aActors, aActions, aTypes, aIDs                  []string
 		aDetails                                         [][]byte
 	)
@@ -294,6 +294,7 @@ func runRows(group []*runWrite, claims bool) (*pgx.Batch, error) {
 			cReports, cAt, cActors = append(cReports, c.report), append(cAt, in.AcquiredAt), append(cActors, in.Actor)
 			cSlope, cIntercept = append(cSlope, c.scalars.slope), append(cIntercept, c.scalars.intercept)
 			cSD, cR2, cLOD = append(cSD, c.scalars.residualSD), append(cR2, c.scalars.rSquared), append(cLOD, c.scalars.lod)
+			cIS = append(cIS, c.scalars.isResponse)
 			cFailed = append(cFailed, failed)
 		}
 		audits, err := runAudits(in, w.runID, w.curves)
@@ -322,7 +323,7 @@ func runRows(group []*runWrite, claims bool) (*pgx.Batch, error) {
 	b.QueuedQueries = append(b.QueuedQueries, samples.QueuedQueries...)
 	if len(cIDs) > 0 {
 		b.Queue(sqlGroupInsertCurves, cIDs, cRuns, cMethods, cRevisions, cInstruments, cAnalytes, cUnits, cModels,
-			cWeightings, cVerdicts, cEngine, cReports, cAt, cActors, cSlope, cIntercept, cSD, cR2, cLOD, cFailed)
+			cWeightings, cVerdicts, cEngine, cReports, cAt, cActors, cSlope, cIntercept, cSD, cR2, cLOD, cFailed, cIS)
 	}
 	b.Queue(sqlGroupInsertAudit, aActors, aActions, aTypes, aIDs, aDetails)
 	if results.Len() > 0 {

@@ -43,6 +43,7 @@ type preparedCurve struct {
 // curveScalars are the report values copied into columns for trends.
 type curveScalars struct {
 	slope, intercept, residualSD, rSquared, lod *float64
+	isResponse                                  *float64 // mean IS response of the calibrators; nil without an IS
 }
 
 func fptr(v float64) *float64 {
@@ -92,6 +93,13 @@ func prepareCurve(c lab.CurveInput) (preparedCurve, error) {
 	r := c.Report
 	p := preparedCurve{id: id, in: c, model: string(r.Model), weighting: string(r.Weighting),
 		verdict: r.Verdict, engine: r.Engine, scalars: scalarsOf(r)}
+	if n := len(c.CalibratorIS); n > 0 {
+		var sum float64
+		for _, v := range c.CalibratorIS {
+			sum += v
+		}
+		p.scalars.isResponse = fptr(sum / float64(n))
+	}
 	if p.weighting == "" {
 		p.weighting = string(r.WeightingRequested)
 	}
@@ -171,7 +179,7 @@ func prepareRun(ctx context.Context, in lab.RunInput, curves []lab.CurveInput) (
 	}
 	payload, err := json.Marshal(storedPayload{Method: in.Method, MethodRevision: in.MethodRevision,
 		Instrument: in.Instrument, AcquiredAt: in.AcquiredAt, Operator: in.Operator,
-		SourceFormat: in.SourceFormat, Standards: in.Standards, Samples: samples, Materials: in.Materials})
+		SourceFormat: in.SourceFormat, Standards: in.Standards, Samples: samples, Materials: in.Materials, Sequence: in.Sequence})
 	if err != nil {
 		return nil, nil, fmt.Errorf("store: marshal run payload: %w", err)
 	}
@@ -353,10 +361,13 @@ func (db *DB) GetRun(ctx context.Context, id string) (*lab.Run, error) {
 func readRun(ctx context.Context, tx pgx.Tx, id string) (*lab.Run, error) {
 	r := &lab.Run{ID: id, Standards: []lab.Standard{}, Samples: []lab.Sample{}, Curves: []lab.CurveRef{}}
 	var operator *string
+	var sequence, isResponses []byte
 	err := tx.QueryRow(ctx, `
-SELECT method, method_revision, instrument, acquired_at, operator, received_at, received_by, source_format
+SELECT method, method_revision, instrument, acquired_at, operator, received_at, received_by, source_format, payload->'sequence',
+       (SELECT jsonb_agg(s.v->'is_responses' ORDER BY s.n) FROM jsonb_array_elements(payload->'standards') WITH ORDINALITY AS s(v, n)
+         WHERE EXISTS (SELECT 1 FROM jsonb_array_elements(payload->'standards') x WHERE x ? 'is_responses'))
 FROM runs WHERE id = $1`, id).Scan(&r.Method, &r.MethodRevision, &r.Instrument, &r.AcquiredAt, &operator,
-		&r.ReceivedAt, &r.ReceivedBy, &r.SourceFormat)
+		&r.ReceivedAt, &r.ReceivedBy, &r.SourceFormat, &sequence, &isResponses)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, lab.Errorf(lab.KindNotFound, "run %s not found", id)
 	}
@@ -365,6 +376,12 @@ FROM runs WHERE id = $1`, id).Scan(&r.Method, &r.MethodRevision, &r.Instrument, 
 	}
 	if operator != nil {
 		r.Operator = *operator
+	}
+	if len(sequence) > 0 && string(sequence) != "null" {
+		r.Sequence = new(lab.RunSequence)
+		if err := json.Unmarshal(sequence, r.Sequence); err != nil {
+			return nil, fmt.Errorf("store: decode the sequence of run %s: %w", id, err)
+		}
 	}
 	mrows, err := tx.Query(ctx, `SELECT material FROM run_standard_materials WHERE run_id = $1 ORDER BY position`, id)
 	if err != nil {
@@ -397,6 +414,10 @@ WHERE run_id = $1 ORDER BY standard, replicate`, id)
 	if err != nil {
 		return nil, classify("scan readings", err)
 	}
+	// The internal standard's responses are kept in the payload only.
+	if err := addISResponses(r, isResponses); err != nil {
+		return nil, err
+	}
 
 	rows, err = tx.Query(ctx, `SELECT sample_id, analyte, responses, dilution FROM run_samples WHERE run_id = $1 ORDER BY position`, id)
 	if err != nil {
@@ -424,4 +445,28 @@ WHERE run_id = $1 ORDER BY standard, replicate`, id)
 		return nil, classify("scan curves of run", err)
 	}
 	return r, nil
+}
+
+// addISResponses gives the run's standards their internal-standard
+// responses from the payload's lists (raw: a JSON array with each
+// standard's is_responses or null, in order; NULL when no standard has
+// any).
+func addISResponses(r *lab.Run, raw []byte) error {
+	var lists [][]float64
+	if len(raw) == 0 {
+		return nil
+	}
+	if err := json.Unmarshal(raw, &lists); err != nil {
+		return fmt.Errorf("store: decode the IS responses of run %s: %w", r.ID, err)
+	}
+	if len(lists) == 0 {
+		return nil
+	}
+	if len(lists) != len(r.Standards) {
+		return fmt.Errorf("store: run %s: %d standards, %d lists of IS responses", r.ID, len(r.Standards), len(lists))
+	}
+	for i := range r.Standards {
+		r.Standards[i].ISResponses = lists[i]
+	}
+	return nil
 }

@@ -98,7 +98,7 @@ func equation(c curve) string {
 		return b.String()
 	}
 	terms := calib.Terms(c.model)
-	if c.model == calib.LinearOrigin {
+	if c.model == calib.LinearOrigin || c.model == calib.AverageRF {
 		return "y = " + signed(c.coef[0]) + terms[0]
 	}
 	var b strings.Builder

@@ -219,6 +219,8 @@ func modelName(m calib.Model) string {
 	switch m {
 	case calib.LinearOrigin:
 		return "linear through origin"
+	case calib.AverageRF:
+		return "average response factor (through origin, slope = mean RF)"
 	case calib.Quadratic:
 		return "quadratic"
 	case calib.FourPL:

@@ -22,6 +22,24 @@ import (
 	openapi_types "github.com/oapi-codegen/runtime/types"
 )
 
+// Defines values for AnalyteQuantBlankSubtraction.
+const (
+	BlankSubtractionMeanMethodBlank AnalyteQuantBlankSubtraction = "mean_method_blank"
+	BlankSubtractionNone            AnalyteQuantBlankSubtraction = "none"
+)
+
+// Valid indicates whether the value is a known member of the AnalyteQuantBlankSubtraction enum.
+func (e AnalyteQuantBlankSubtraction) Valid() bool {
+	switch e {
+	case BlankSubtractionMeanMethodBlank:
+		return true
+	case BlankSubtractionNone:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for CheckName.
 const (
 	CheckBackCalculation       CheckName = "back_calculation"
@@ -38,6 +56,7 @@ const (
 	CheckRSquared              CheckName = "r_squared"
 	CheckRelativeStandardError CheckName = "relative_standard_error"
 	CheckResidualRuns          CheckName = "residual_runs"
+	CheckRfRsd                 CheckName = "rf_rsd"
 	CheckStandardsInDate       CheckName = "standards_in_date"
 )
 
@@ -71,6 +90,8 @@ func (e CheckName) Valid() bool {
 	case CheckRelativeStandardError:
 		return true
 	case CheckResidualRuns:
+		return true
+	case CheckRfRsd:
 		return true
 	case CheckStandardsInDate:
 		return true
@@ -315,6 +336,7 @@ func (e MethodRequestSignatures) Valid() bool {
 
 // Defines values for Model.
 const (
+	ModelAverageRF           Model = "average_rf"
 	ModelExpSaturation       Model = "exp_saturation"
 	ModelExpSaturationOffset Model = "exp_saturation_offset"
 	ModelFivePL              Model = "5pl"
@@ -328,6 +350,8 @@ const (
 // Valid indicates whether the value is a known member of the Model enum.
 func (e Model) Valid() bool {
 	switch e {
+	case ModelAverageRF:
+		return true
 	case ModelExpSaturation:
 		return true
 	case ModelExpSaturationOffset:
@@ -810,6 +834,7 @@ const (
 	TrendParameterD          TrendParameter = "d"
 	TrendParameterG          TrendParameter = "g"
 	TrendParameterIntercept  TrendParameter = "intercept"
+	TrendParameterIsResponse TrendParameter = "is_response"
 	TrendParameterLod        TrendParameter = "lod"
 	TrendParameterRSquared   TrendParameter = "r_squared"
 	TrendParameterResidualSd TrendParameter = "residual_sd"
@@ -831,6 +856,8 @@ func (e TrendParameter) Valid() bool {
 	case TrendParameterG:
 		return true
 	case TrendParameterIntercept:
+		return true
+	case TrendParameterIsResponse:
 		return true
 	case TrendParameterLod:
 		return true
@@ -944,7 +971,10 @@ type AcceptanceInput struct {
 	Mandatory *[]CheckName `json:"mandatory,omitempty"`
 
 	// MandelAlpha A significance level.
-	MandelAlpha        *Alpha   `json:"mandel_alpha,omitempty"`
+	MandelAlpha *Alpha `json:"mandel_alpha,omitempty"`
+
+	// MaxRfRsdPct %RSD of the response factors the `average_rf` model allows (check `rf_rsd`). Default 20, after US EPA SW-846 Method 8000D (from memory); the laboratory's method sets its own.
+	MaxRfRsdPct        *float64 `json:"max_rf_rsd_pct,omitempty"`
 	MaxRsePct          *float64 `json:"max_rse_pct,omitempty"`
 	MinLevels          *int     `json:"min_levels,omitempty"`
 	MinRSquared        *float64 `json:"min_r_squared,omitempty"`
@@ -970,6 +1000,7 @@ type AcceptancePolicy struct {
 	LackOfFitAlpha          float64     `json:"lack_of_fit_alpha"`
 	Mandatory               []CheckName `json:"mandatory"`
 	MandelAlpha             float64     `json:"mandel_alpha"`
+	MaxRfRsdPct             float64     `json:"max_rf_rsd_pct"`
 	MaxRsePct               float64     `json:"max_rse_pct"`
 	MinLevels               int         `json:"min_levels"`
 	MinRSquared             float64     `json:"min_r_squared"`
@@ -986,6 +1017,11 @@ type Alpha = float64
 
 // Analyte defines model for Analyte.
 type Analyte struct {
+	// Model Fits this analyte with another model than the method's `model`
+	// (for instance `average_rf` for one analyte of a method whose
+	// others are fitted by a line); absent: the method's model.
+	Model *Model `json:"model,omitempty"`
+
 	// Name A name of an instrument, analyte, method, level or sample.
 	Name Identifier `json:"name"`
 
@@ -1012,6 +1048,12 @@ type Analyte struct {
 // unit, rounded and qualified. The laboratory's accreditation, regulator and SOP come
 // first; a qualified person reviews every result.
 type AnalyteQuant struct {
+	// BlankLimitFractionOfLloq A blank of a run's sequence judged here passes when |x̂0| ≤ this fraction of the LLOQ (the curve's lowest non-zero standard); absent, when |x̂0| ≤ the reporting limit.
+	BlankLimitFractionOfLloq *float64 `json:"blank_limit_fraction_of_lloq,omitempty"`
+
+	// BlankSubtraction Subtracted from each sample's x̂0 in its sequence record (`blank_correction`); default `none`.
+	BlankSubtraction *AnalyteQuantBlankSubtraction `json:"blank_subtraction,omitempty"`
+
 	// Decimals Round to this many decimals instead of significant figures.
 	Decimals       *int     `json:"decimals,omitempty"`
 	DetectionLimit *float64 `json:"detection_limit,omitempty"`
@@ -1031,6 +1073,9 @@ type AnalyteQuant struct {
 	// SignificantFigures Default 3 (when `decimals` is absent).
 	SignificantFigures *int `json:"significant_figures,omitempty"`
 }
+
+// AnalyteQuantBlankSubtraction Subtracted from each sample's x̂0 in its sequence record (`blank_correction`); default `none`.
+type AnalyteQuantBlankSubtraction string
 
 // AuditEvent defines model for AuditEvent.
 type AuditEvent struct {
@@ -1081,6 +1126,9 @@ type Check struct {
 	// `standards_in_date` is computed at ingest when the run names its
 	// standard materials; the method's `expired_standards` makes it
 	// mandatory (the default) or advisory, not this list.
+	// `rf_rsd` (mandatory by default) is computed for the `average_rf`
+	// model only: the %RSD of the response factors against
+	// `max_rf_rsd_pct`.
 	Name   CheckName `json:"name"`
 	Passed bool      `json:"passed"`
 
@@ -1104,6 +1152,9 @@ type Check struct {
 // `standards_in_date` is computed at ingest when the run names its
 // standard materials; the method's `expired_standards` makes it
 // mandatory (the default) or advisory, not this list.
+// `rf_rsd` (mandatory by default) is computed for the `average_rf`
+// model only: the %RSD of the response factors against
+// `max_rf_rsd_pct`.
 type CheckName string
 
 // Concentration A nominal concentration, in the analyte's unit.
@@ -1199,6 +1250,18 @@ type Curve struct {
 	// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
 	// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
 	// `power_of_mean`.
+	// `average_rf` is the average response factor: RF_i = y_i/x_i of every
+	// non-zero standard reading (y the response, or the response ratio
+	// A_x/A_is with an internal standard), y = RF̄·x with RF̄ their mean,
+	// coefficients [RF̄]; its linearity check is `rf_rsd` (%RSD of the RFs
+	// ≤ `max_rf_rsd_pct`, default 20, after US EPA SW-846 Method 8000D,
+	// from memory); x̂0 = ȳ0/RF̄ with u(x̂0) = x̂0·(s_RF/RF̄)·√(1/m + 1/k)
+	// and the interval from the t pivot (`interval_method`
+	// `average_rf_t_pivot`). RF̄ is the slope of the line through the
+	// origin weighted 1/x², so the curve's diagnostics, back-calculation
+	// and limits are that line's and the method's weighting is not used;
+	// readings at nominal zero give no RF and are listed as excluded.
+	// The RFs are in the curve's `response_factors`.
 	Model Model `json:"model"`
 
 	// N Readings in the fit (excluded ones not counted).
@@ -1224,6 +1287,15 @@ type Curve struct {
 
 	// ResidualSd Residual standard deviation s(y/x), on the Σw = n weight scale.
 	ResidualSd *float64 `json:"residual_sd"`
+
+	// ResponseFactors What an `average_rf` curve adds: every response factor RF_i = y_i/x_i
+	// of a fitted non-zero reading (y the response ratio A_x/A_is with an
+	// internal standard: the relative response factor divided by the
+	// internal standard's concentration), their mean, SD (k − 1 degrees of
+	// freedom) and %RSD against the method's limit. Absent for every other
+	// model. The laboratory's accreditation, regulator and SOP come first;
+	// a qualified person reviews every curve.
+	ResponseFactors *CurveResponseFactors `json:"response_factors,omitempty"`
 
 	// Review The review decision, present once the curve is reviewed.
 	Review *Review `json:"review,omitempty"`
@@ -1385,6 +1457,32 @@ type CurvePoint struct {
 	Weight *float64 `json:"weight"`
 }
 
+// CurveResponseFactors What an `average_rf` curve adds: every response factor RF_i = y_i/x_i
+// of a fitted non-zero reading (y the response ratio A_x/A_is with an
+// internal standard: the relative response factor divided by the
+// internal standard's concentration), their mean, SD (k − 1 degrees of
+// freedom) and %RSD against the method's limit. Absent for every other
+// model. The laboratory's accreditation, regulator and SOP come first;
+// a qualified person reviews every curve.
+type CurveResponseFactors struct {
+	Basis string `json:"basis"`
+
+	// Blanks Readings at nominal zero, which give no RF.
+	Blanks int `json:"blanks"`
+
+	// K Number of RFs (each fitted non-zero reading is one).
+	K int `json:"k"`
+
+	// Levels The level of each RF, in the order of `rfs`.
+	Levels    []string  `json:"levels"`
+	MaxRsdPct float64   `json:"max_rsd_pct"`
+	Mean      float64   `json:"mean"`
+	Rfs       []float64 `json:"rfs"`
+	RsdPct    float64   `json:"rsd_pct"`
+	Sd        float64   `json:"sd"`
+	Source    string    `json:"source"`
+}
+
 // CurveStatus Review state. A new curve is `pending_review`; a review is final.
 type CurveStatus string
 
@@ -1414,6 +1512,18 @@ type CurveSummary struct {
 	// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
 	// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
 	// `power_of_mean`.
+	// `average_rf` is the average response factor: RF_i = y_i/x_i of every
+	// non-zero standard reading (y the response, or the response ratio
+	// A_x/A_is with an internal standard), y = RF̄·x with RF̄ their mean,
+	// coefficients [RF̄]; its linearity check is `rf_rsd` (%RSD of the RFs
+	// ≤ `max_rf_rsd_pct`, default 20, after US EPA SW-846 Method 8000D,
+	// from memory); x̂0 = ȳ0/RF̄ with u(x̂0) = x̂0·(s_RF/RF̄)·√(1/m + 1/k)
+	// and the interval from the t pivot (`interval_method`
+	// `average_rf_t_pivot`). RF̄ is the slope of the line through the
+	// origin weighted 1/x², so the curve's diagnostics, back-calculation
+	// and limits are that line's and the method's weighting is not used;
+	// readings at nominal zero give no RF and are listed as excluded.
+	// The RFs are in the curve's `response_factors`.
 	Model    Model    `json:"model"`
 	RSquared *float64 `json:"r_squared"`
 	RunID    UUID     `json:"run_id"`
@@ -1517,25 +1627,32 @@ type Identifier = string
 
 // InjectionInput defines model for InjectionInput.
 type InjectionInput struct {
-	// Analyte An ICV or CCV's analyte (a judged check without one applies to every analyte).
+	// Analyte An ICV, CCV or blank's analyte (a judged check or blank without one applies to every analyte).
 	Analyte *Identifier `json:"analyte,omitempty"`
 
 	// ID A sample's id (for `sample` and `qc_sample`, a sample of the run), or the check's own name.
 	ID          Identifier `json:"id"`
 	IsResponses *Responses `json:"is_responses,omitempty"`
 
-	// Judged A verdict reached elsewhere (required for blanks).
+	// Judged A verdict reached elsewhere (a blank needs either this or its analyte and `responses`).
 	Judged   *InjectionInputJudged `json:"judged,omitempty"`
 	Kind     InjectionInputKind    `json:"kind"`
 	Nominal  *float64              `json:"nominal,omitempty"`
 	Position int                   `json:"position"`
 
-	// Responses An ICV or CCV's readings, quantified against the run's curve of its analyte.
+	// Responses An ICV, CCV or blank's readings of its analyte. Unless `judged` is given they are
+	// quantified against the run's curve of the analyte (with an internal standard, on the
+	// ratios: `is_responses` then required): an ICV or CCV is judged by its recovery, a
+	// blank (`ccb`, `calibration_blank`, `method_blank`) by |x̂0| ≤ its limit, the
+	// analyte's `blank_limit_fraction_of_lloq` × LLOQ (the curve's lowest non-zero
+	// standard) or else its reporting limit in the analyte's unit. A blank's readings also
+	// serve the carry-over check when it directly follows the highest calibration
+	// standard; a double blank (no internal standard) gives `responses` and `judged`.
 	Responses *Responses `json:"responses,omitempty"`
 	Time      *Timestamp `json:"time,omitempty"`
 }
 
-// InjectionInputJudged A verdict reached elsewhere (required for blanks).
+// InjectionInputJudged A verdict reached elsewhere (a blank needs either this or its analyte and `responses`).
 type InjectionInputJudged string
 
 // InjectionInputKind defines model for InjectionInput.Kind.
@@ -1677,6 +1794,18 @@ type Method struct {
 	// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
 	// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
 	// `power_of_mean`.
+	// `average_rf` is the average response factor: RF_i = y_i/x_i of every
+	// non-zero standard reading (y the response, or the response ratio
+	// A_x/A_is with an internal standard), y = RF̄·x with RF̄ their mean,
+	// coefficients [RF̄]; its linearity check is `rf_rsd` (%RSD of the RFs
+	// ≤ `max_rf_rsd_pct`, default 20, after US EPA SW-846 Method 8000D,
+	// from memory); x̂0 = ȳ0/RF̄ with u(x̂0) = x̂0·(s_RF/RF̄)·√(1/m + 1/k)
+	// and the interval from the t pivot (`interval_method`
+	// `average_rf_t_pivot`). RF̄ is the slope of the line through the
+	// origin weighted 1/x², so the curve's diagnostics, back-calculation
+	// and limits are that line's and the method's weighting is not used;
+	// readings at nominal zero give no RF and are listed as excluded.
+	// The RFs are in the curve's `response_factors`.
 	Model                Model  `json:"model"`
 	Name                 string `json:"name"`
 	PendingCurvesInForce bool   `json:"pending_curves_in_force"`
@@ -1756,6 +1885,18 @@ type MethodRequest struct {
 	// [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
 	// Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
 	// `power_of_mean`.
+	// `average_rf` is the average response factor: RF_i = y_i/x_i of every
+	// non-zero standard reading (y the response, or the response ratio
+	// A_x/A_is with an internal standard), y = RF̄·x with RF̄ their mean,
+	// coefficients [RF̄]; its linearity check is `rf_rsd` (%RSD of the RFs
+	// ≤ `max_rf_rsd_pct`, default 20, after US EPA SW-846 Method 8000D,
+	// from memory); x̂0 = ȳ0/RF̄ with u(x̂0) = x̂0·(s_RF/RF̄)·√(1/m + 1/k)
+	// and the interval from the t pivot (`interval_method`
+	// `average_rf_t_pivot`). RF̄ is the slope of the line through the
+	// origin weighted 1/x², so the curve's diagnostics, back-calculation
+	// and limits are that line's and the method's weighting is not used;
+	// readings at nominal zero give no RF and are listed as excluded.
+	// The RFs are in the curve's `response_factors`.
 	Model Model `json:"model"`
 
 	// Name A name of an instrument, analyte, method, level or sample.
@@ -1809,6 +1950,18 @@ type MethodRequestSignatures string
 // [a, b]; `exp_saturation_offset` y = y0 + a·(1 − e^(−b·x)), [a, b, y0].
 // Non-linear models accept the weightings `none`, `1/y^2`, `1/s^2` and
 // `power_of_mean`.
+// `average_rf` is the average response factor: RF_i = y_i/x_i of every
+// non-zero standard reading (y the response, or the response ratio
+// A_x/A_is with an internal standard), y = RF̄·x with RF̄ their mean,
+// coefficients [RF̄]; its linearity check is `rf_rsd` (%RSD of the RFs
+// ≤ `max_rf_rsd_pct`, default 20, after US EPA SW-846 Method 8000D,
+// from memory); x̂0 = ȳ0/RF̄ with u(x̂0) = x̂0·(s_RF/RF̄)·√(1/m + 1/k)
+// and the interval from the t pivot (`interval_method`
+// `average_rf_t_pivot`). RF̄ is the slope of the line through the
+// origin weighted 1/x², so the curve's diagnostics, back-calculation
+// and limits are that line's and the method's weighting is not used;
+// readings at nominal zero give no RF and are listed as excluded.
+// The RFs are in the curve's `response_factors`.
 type Model string
 
 // NextCursor Pass as `cursor`, with the same filters, for the next page; null when
@@ -2341,7 +2494,7 @@ type RunRequest struct {
 	// is mandatory unless the method makes it advisory.
 	StandardMaterials *[]Identifier `json:"standard_materials,omitempty"`
 
-	// Standards One entry per analyte and level.
+	// Standards One entry per analyte and level (at most 1000, for instance 100 analytes × 8 levels with room to spare).
 	Standards []StandardInput `json:"standards"`
 }
 
@@ -2489,18 +2642,60 @@ type Scope string
 
 // SequenceRecord A result's place in its run's sequence.
 type SequenceRecord struct {
+	// BlankCorrection The method's blank subtraction stated on the result: `none`, or `mean_method_blank`
+	// (the mean x̂0 of the batch's method blanks, subtracted from the sample's undiluted x̂0,
+	// giving `net`). The result's `concentration` and `reported` value stay as measured.
+	// Absent on results stored before it existed.
+	BlankCorrection *struct {
+		Applied   bool    `json:"applied"`
+		Blanks    int     `json:"blanks"`
+		Net       float64 `json:"net"`
+		Policy    string  `json:"policy"`
+		Statement string  `json:"statement"`
+		Value     float64 `json:"value"`
+		X0        float64 `json:"x0"`
+	} `json:"blank_correction,omitempty"`
 	Breaches []struct {
 		Detail   string `json:"detail"`
 		Position int    `json:"position"`
 		Rule     string `json:"rule"`
 	} `json:"breaches"`
+
+	// CarryOver The carry-over check of the analyte's sequence (ICH M10 §3.2.6): the blank directly after
+	// the highest calibration standard may show at most 20 % of the LLOQ's analyte response
+	// (the mean response of the lowest non-zero standard) and 5 % of the calibrators' mean IS
+	// response. A failure is noted on every result; it does not change a state, which a
+	// qualified reviewer decides. Absent on results stored before it existed.
+	CarryOver *struct {
+		AnalyteLimit    float64 `json:"analyte_limit"`
+		AnalytePassed   bool    `json:"analyte_passed"`
+		AnalytePct      float64 `json:"analyte_pct"`
+		AnalyteResponse float64 `json:"analyte_response"`
+		BlankPosition   int     `json:"blank_position"`
+		Detail          string  `json:"detail"`
+		Evaluated       bool    `json:"evaluated"`
+		HighestStandard int     `json:"highest_standard"`
+		IsEvaluated     bool    `json:"is_evaluated"`
+		IsLimit         float64 `json:"is_limit"`
+		IsPassed        bool    `json:"is_passed"`
+		IsPct           float64 `json:"is_pct"`
+		IsResponse      float64 `json:"is_response"`
+		Passed          bool    `json:"passed"`
+		Source          string  `json:"source"`
+	} `json:"carry_over,omitempty"`
 	Checks []struct {
-		Detail      string  `json:"detail"`
-		ID          string  `json:"id"`
-		Kind        string  `json:"kind"`
-		Passed      bool    `json:"passed"`
-		Position    int     `json:"position"`
-		RecoveryPct float64 `json:"recovery_pct"`
+		Detail string `json:"detail"`
+		ID     string `json:"id"`
+		Kind   string `json:"kind"`
+
+		// Limit A blank judged here, the limit of |x̂0|.
+		Limit       *float64 `json:"limit,omitempty"`
+		Passed      bool     `json:"passed"`
+		Position    int      `json:"position"`
+		RecoveryPct float64  `json:"recovery_pct"`
+
+		// Value A blank judged here, its x̂0 (undiluted, in the curve's unit).
+		Value *float64 `json:"value,omitempty"`
 	} `json:"checks"`
 
 	// Closing Position of the verification closing the bracket; 0 when none.
@@ -2740,7 +2935,7 @@ type Trend struct {
 	// Notes What to keep in mind reading this trend (a provisional baseline, curves without a value).
 	Notes []string `json:"notes"`
 
-	// Parameter The curve parameter a trend follows: a straight line's `slope` and `intercept`, any curve's `residual_sd`, `r_squared` and `lod`, or a non-linear model's coefficient by name (`a`, `b`, `c`, `d`, `g`, `y0`; see the model's equation), taken from converged fits only.
+	// Parameter The curve parameter a trend follows: a straight line's `slope` and `intercept`, any curve's `residual_sd`, `r_squared` and `lod`, `is_response` (the mean internal-standard response of the curve's calibrators, for analytes with an internal standard, fitted since this parameter exists; others have no value), or a non-linear model's coefficient by name (`a`, `b`, `c`, `d`, `g`, `y0`; see the model's equation), taken from converged fits only.
 	Parameter TrendParameter `json:"parameter"`
 	Points    []TrendPoint   `json:"points"`
 
@@ -2762,7 +2957,7 @@ type TrendBaseline struct {
 	Selection string `json:"selection"`
 }
 
-// TrendParameter The curve parameter a trend follows: a straight line's `slope` and `intercept`, any curve's `residual_sd`, `r_squared` and `lod`, or a non-linear model's coefficient by name (`a`, `b`, `c`, `d`, `g`, `y0`; see the model's equation), taken from converged fits only.
+// TrendParameter The curve parameter a trend follows: a straight line's `slope` and `intercept`, any curve's `residual_sd`, `r_squared` and `lod`, `is_response` (the mean internal-standard response of the curve's calibrators, for analytes with an internal standard, fitted since this parameter exists; others have no value), or a non-linear model's coefficient by name (`a`, `b`, `c`, `d`, `g`, `y0`; see the model's equation), taken from converged fits only.
 type TrendParameter string
 
 // TrendPoint defines model for TrendPoint.
@@ -17292,651 +17487,690 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P1fjxtJlicKfhVb9i2IzHIyGKFQKsVAARMZkqrUJaWUEcrMni5m0S3oxqC3nGZMN2dEsDK16L0NDPq+",
-	"9jwMcB8WC9zdvc89wCJnsW9Z2LeL7s+w9UkW54+ZmzudDDIUUmbNaDCdpXC62387/8/vfN8am9ncaKUL",
-	"2xp835oqmagc/3kqC/U8naUF/geeJMqO83RepEa3Bq3XUyUK80bpe1bk6ruFsoX4bmEKORBTcyVmUi/d",
-	"cyvSworzxfiNKsTUZIkVV1OlxWSRZUPdLqZKnC9yW3QiMVe5SHI5KbqpKibdaVHM5Tzt5rJQGYyjyyPs",
-	"9j/tiTOlC2G0UJcqXw611PZK5aIwQvoRXaXFVEhxKbM0oeH2hroVtex4qmYSZjWT1+lsMWsNDvYPHx5+",
-	"dv/Tw4dRa5ZqetiPWsVyrlqDVqoLdaHy1tu3Ubk2r0yWjpfNi4OLIeb4RiTi4aLfvz/GSeA/1dHVb+jZ",
-	"VaoTc0UP44GI8Z24XDxYk5heiofaqrHRiRW8bLCm96yw6Z+UMJcqx6XO1STNMgGr1omE6l30RHzQ7x9d",
-	"/eYwFhOTD/WDftm+FNSmWyzcC2Em4qDfr6/WXBaFymGKf/xDv/vo218fXf2G/vE/tfxS2SJP9UV1pU7V",
-	"TKYaHq8s1qkbSOGOlJjJpbAFzMEqnQhtriJRTFMrjFZibBa6UAmtwNXUZGqo/WQyNSlEqoMT1zkSiRrn",
-	"SlplaYpKjqf+hEid8HrZoZaFKMJzLQvVE304Y1IcHjy607NzqqxquFdntL+RyM1CJyoRi3kkFrpIs8rQ",
-	"+DalFm+RkBcy1UPdjn3zXb/isVDfLWRmRfAj/jfuHIk+XcXUN3Unc1RFvjyeFCpfOz+4plcyLcS5mphc",
-	"iRw+SfVFrxW1YGvSXCWtQZEvVGUwm/p9G7XmMpczVTAJO1nkl+rZ4+brOYYf71mRJtBlCo/nspi2opaW",
-	"M2w42TiU/ylXk9ag9Td7JQXdo1/t3ldfPXuMC/EsUbO5KZQeL3+vGujEsRhnqdJFdzw1VmnxRi1FWwr4",
-	"HvZDigtjEjGemnSsOqKYykLM5BtlkcIVeaqSob7K00IJKyeqJ54AJRSvXp69ppdtYXJ+e2zyRBT4cVqI",
-	"dr7QdiCsUkMdw+Uo1OlCx5G4mqbjqZCZNWKS6guVz/NUF1acnH0tzk2SKtvpid+rpRUyV8KOzVwBYR3q",
-	"8vJSz0rjXZod4Z2FicG60g3muwe9yUIx1Rrq3CzgvsHuBH3TQpz97rh78OBTIEvQk5mrXMIiRvCpgJ0b",
-	"6nL38VYjCTDJUkh4IbcqwcdKjw3cK7wyon01xeWby7GCn4d6pmbnKhcmT4AXGaENLHpRqPxISBHPpbVX",
-	"Jk9iwS+mTHTMouj0hrorzuQMJxwJK2fBULH3YGKRmKRAaR0lgoOUqUIlg6EWOMtPPjF5epFqmQlibp98",
-	"At3h2vLwsQtbyGJhI54tTEKI+LkZY7dxh6heHBzG7qmaZ3KpkoGAcx1HODZtimmqL0RqoQE4V4XSMGka",
-	"J/PXsczzVNl17U1kZlVcWQikn9C4yoPVMDkzHP4FBj8QhwcH0Hk7JkY/CDv5vVrG1SWG45opXKvqWqaW",
-	"+UeqxSRLL6bFAN8iTofTk3A+JgbOHs6+ADqY4zzgimA/x75BPNQTmWbAeA6vr2H4D66vOyIxyuIZAcEG",
-	"z9wbtaTO3qgl9IRjMblKYDDwvMiltnJMq0DnGS9xRAsCbdBa4xj4er6GuxVDY/C+uh4rJCIDIT1PsMDm",
-	"aO5Tc6WF0e5MC6HxmtE4ImFJRoK5wuuH/UdwO2Hvy2ucWrsA9qPhHhRTBa0gfcrVpXmj3LLha34T0wkO",
-	"n0dyJa3IjMV74Ygs7WtJZmsbXOc9z5W+KKatwf7BZ8h2/N9RRRY57v697P6p333UGw26336/H+0ffPa2",
-	"WSR5pm2RL2ZKrxFqU/+7SBOli3SSqjxCImJsoZJyk4CGrmMeZSe3ZSLPfOc47FfyQp0scmvy5mHHWl0X",
-	"ozG+EbtjNc/VZWoWQP8u1JGQ50g64NCXVwZ+8rP4bqHyZTkNaq617ZB5fCgCLPQ6zpsv9Pvlu2/hezs3",
-	"2iqUAz6XCcuY8NfY6II3X87nWUpUcm+em/NMzX79DxYG+v2WPb6ir6jT6lRfyGxi8plKhF3qQl5H4io3",
-	"cMOWcwXUA7WShQK+YdOEiBg1OxAz9+1Q/+3Zyy8iIQWdYJDWciWk0AtkPucqM/rCAv0WC/1Gw7WfpCpL",
-	"4BO+IAIE/lzqCyUuU5PJQuGvuNXC80yicJ6awdIs6do2KYVdrxU2rQ5/sVfTIUPpt1uqTlu1wK9Xmqjo",
-	"FFu1Un5Ra4hF8S0bgbdxx0+MnmTp+IOeK7xCyppFPgb5FXi/git9nibEGxzLaksScgUQAXWlEiGzXMlk",
-	"GQk51PQT0DKzKJDHF1FdccYjCaw2LYk08gDHW4eamGvn40m54aQ8xQ1KlP7QR4WYeSbHbywZSkhoF1mK",
-	"zCzVIr7uOnLbxd9s3Pu4mZs285kuVK5l9iTPTf4hN9R1LBT0TKoSCv0WhFajs6UYttLKS8OWk25L4Tj5",
-	"uL8b9/cLUzwF68uHvqtagrjgiHvJjNV1aouPe7Zxz17JZWZk8tqY5zK/UB966/AWglammAtblV+q/J4V",
-	"Y6Mn6cUiV4lAy+7Hfdy4j2cqv0zH6istL2WayfPsg29lIgt5Lq0SY6nh9p0rkYPJWHlDNO1uOlakay+K",
-	"AkTzxFzpCIXt9gTle1TqO2S4TrUtpB7Tl8pCiwlT7HM1lgurUKX0fYMNRgr4Jjn/KIdvOjRsbu56e/PG",
-	"j0vLNO7+a2NeSL10LoifRTgLHGi5LPBMeU/OR4rxHjf/Ky0XxdTk6Z/UB2X1L1JrU30RlWp+5JV3kwuy",
-	"ryXiXMlc5ey1/HgE1h+Bb775pnu8KKZKF7BnatXsFH+Oaxk7i7OIUTaOhSyKPD1fFEq0T5+eiE8fPuh3",
-	"Nrug6gZFOkjz3IyVtcCunugiLZYf8jx9o7Ksy7amVM8XbK0+z5V8g86fRaacRZAZ1xGvgI3ZLQMMbqjN",
-	"ZKJ0AswMjUil5rDI1EcmdIPk8pW2i/nc5IVKXqgkla/xpHxowxAykntWnFCvXRgFsBRtCvS9VbxnQo7B",
-	"j2A/kpcNO/vWXX9cm2NcManH6hlcNXgkkySF1ZTZqxyWtkiVbQ3QEVbfo/JrUUxzZTEa5ghvH+6O8ySy",
-	"pxY2S+mLVIOlL1ETucgK0SbvDoQskAHHkFtppoqpSZB8zYNxfN86l+M3o7HMxqPMXI0Kk6kcRjCak+FS",
-	"XY+zhU0v1YvAuw7kRBatQSsxC5DBozIQYL9fet/JDA3LXHYyS/UIvKSjSU5OLuhkU3uN8QRNLb+noU/N",
-	"zNixSqQt0nFaLEcym09vvInH+NLbiOwtsK07fgc2uZGZjCbprl/OpE5kYfKGiIKTqQJL3xXEE6C/cpHT",
-	"/9JhulR5ko6LI/wDXXbkyJfJZWpNvkSfTKFm9kZXD/TzhZwpGs/1M/pov1xfmedy2YpaC51+t1D8O3BT",
-	"noDKdp719Si3d7z3cFgzdakyWwl2edAPDuXBarAJfZiP7HcLmZP0+A4n3CyKLFX5aGzMGztK7m52rmFb",
-	"LNCb+Cd1h42D+3PHLbxUeTphBrh6m6sn+YdfPf4BnGTBJ6QPyzwR7WcnX++dnHzdoVAxiDjEgAhbUCiJ",
-	"NjMMm0AXW088ZtJ50I+EBAVAfHUmnrw6FmffdD87/FS8QNIpPuv3+4+Heiyz9JwZZNg93ZpMnpscb989",
-	"yzRXWMVBjuaKAwzvYonf+ifm/B/UGDlryUBKzroD/6EAIc96MDzC5GMVOe5iS76yMyNZnd67c4lduMEW",
-	"X68n9Vt83EDot/iqkcxv8V2FyO9OkytUuIHkbjWCCsHd5osKNb0V0dyGOO7wVY3ybfFllaxt8cEuRA1k",
-	"dCJsWWbAJQuWwkYSZ0U7CajWenqFAt+Nw3wb6rR/CDeqdjSaDuzae7P+OkYbicVmQlA/J9WTuHoPK3vW",
-	"vPWrxyi8YBv38NsmKuyORz2c06YXGhvSYxDmL1XWa22k+/3eg1A46PX7/f2GM3asZbYs1I3UvkqvKaJm",
-	"+zCjqPXdQuriRnZOg/kS332LEt6N33wF79RPIY6Pv29c5rCjHRUtLSR9DbFGziPq5QeK+gZlHYwdYN6w",
-	"PfENG4dWXy9c2NJQl/cT2rASYjYtBkUuRZzakY88isW5wsCeuHxEzgMKvUiB1RaFSlh/G2r3nkDZQxyP",
-	"rveOR6n1kg18W05qbPRY6cKFwcJoJI+Hxf9nZ0GbWapsJdaIMgpEew53SRfOQOSEH5Pbe2KmpBbPzoRr",
-	"5ciJCUP9af8v//if9w8eiF9FYmxmM6PFs5NX3RdnYo73GGSKSW5mYqZmJl92cL6ZvLjgMFywxE1VlpAT",
-	"m/YC4p0oKCq14vr/+J/74s//RSRptkDK+Of/IiYk1JlsMVPizz+66cqZWegCHiT5Ujg64sIt/T4PNZy0",
-	"MrIehgGR8XD6eRwV4U6Ox7lK0oJXOFcXiwx+ww/PXr6CeauhxjC6IyHLtsRc5dZoDrxxcRe5sousIPGw",
-	"ek8TNU5nMrMNuREwVFEYciJhUo17GV1KSiawcSXZKQQ5G20vpDL7/c0x+3B7CoWrNsqcyaeBam1SYtyt",
-	"GbkbshvlSe2ITuRoml5M18scocTcv2lIvk1gQXfSpNvj/EZp7Ev35hlZqf0xvPUKly1sT3GjVnA2Rnw2",
-	"Vs+ZU5DuQ0C80iJ2pwwjjilutFM9UiHf2m9MA1ml54skLZ5cqi2oefWClBpCzfI9lRRlnBitXKZTvtA9",
-	"iplO4kjESG17RGrLv+V8npvL8EmuYJgqweCnmpU/ghE0Rd5+gRH+E1HLfpDQUHM7tY2XheoW6Uw1vZuo",
-	"QqZZsxA5l3mRjheZzG0kUj3OFmi2ly7YL0evorRG9xqjoEM2LIuWm2DU8jIY9/7tun18bi523EV16fIM",
-	"t1JngtOyos/UZsAtN431RCL3sGsODzEIIMx40HXCtvIBm8ZRkHMMOAjl8HxwnKeFylNJzG6+OM9SO1WJ",
-	"uFikCXzcYDSo8pWhrjIWNikAfwEjsJjnaqwShU3R5orzZQO3GWqfSpUpadlf41d65XTNUu2MdqvaIqqS",
-	"O24vbOGiUMnqSj+F1ynRDEUMaBzS+LJEcICF+xZXS1OWjUqQ+GBfuDIxHcmYot2upsvgaJ8bkympq9dm",
-	"Zc7ZhlzW0iaCRwFGJHMO9z8SGrLsajOYSjgqGqO5r/DfhZ/IJqXsD46mRy1otvXtZpPuN1OFuRWljZ+T",
-	"wFAmoKEAuU5U1cSL5t2r1CqeUWjjXV21bXSFioGBtihY5qAxCmBrnEquvEfRZ2k5RRfkKbxHjaTTwoUB",
-	"/XPNBipbCP8O7MlMSYuXFWXKcA9vv1PNGkw5NHfG/PpE5b2oqpy8RhsJbbngTamD8KNjPgG1opTjgYhL",
-	"JR+4HGn5cTTUcaDhwy915R6eef18kVEWWSRir5FjI7mCXy6Vl/dG5FOPROwVdPwKtKCFzEagpMMD1sQt",
-	"tjIz2hRGp2P4JcnTSRH3RPBUtP2aAdnjk9IRvAmWNCfSqAoDpAQOzLjIlsI3QuE0qPOY/A0qfFJfqJ7r",
-	"EIOt3C4JWYhUXyjLGWNaXflcUZuZuaqoY6ggoTrw2HvYMWC+TCKCX0ut7aAvZgYT1cZKF0Pt5BDqw0Zl",
-	"4P03yhYXMk8ECSakpIo2pWz+9slrsXe5v1fkSic27vTEs8odFwudKWtDmpGllIkvpB1qv6gRX8IwjZGz",
-	"8xVm00+lFvt9URvnUGNMauT6oQbKrWoXZVax0+1EjURC0kDs1elRqkeJLFTsiG91M0ramy80xyygpd81",
-	"IGYS+XBmj4JZ37MiVtdzuK7+nNqY6WdaDHV1yOX5MrlfywhHjcQW1pDt+3oxW2NIq5rQGoxnofmLr1cr",
-	"aoX2rjV3K7R94VvBzSpNXDgSd/ZbUQsPORGp6lIjbdKXKr9QGikRiBqpBSVwnptJmqmAKDEdjlrXXZh7",
-	"91LmuAuwCEimXkByHi8EPXCrgX89l+M3LydP08I9+N3qquDzz+X4zUllZfDx6ZlfHfqbl+iMZ/WEFwh/",
-	"fBasEr9NS3VKK4XPXpbLReMN1gwfPOaFwz9cP/aZfkxrh49PKguIj165VXzlFpEyhUprTRM1dx6rmlmH",
-	"bRglAQHV7wabIqix/v/doFNCBlOK0mUDV70yXZsmcOn9W2TUBFqHJ/FSZjYS/d4DIL793qNHj260dz56",
-	"9Khi8XzQPKoiNxnGYdgdLX9nU3U1lTlK69AIxVBa0X529lI8/Oxhv3vQcbKAz36CmNss1WrV50X6EBol",
-	"tvQH8BeZudryA9xvteXLVzLXYALYYUDuk21HVJNxeHjVdmoDqcw6qizat6UwxYJNIPbyRp8uskYRp+SB",
-	"IC62/Z+qEDLrReIkS3VPnEzVrCcOHor2/qPP9jvi8NH9zkDE+90DGw9RQCej4rlaGp2In/71ANh1myfQ",
-	"OYJX79sYA3D8O/fF2eMjER9AI6K4MiAhaKvGCyA67jXP77FFPGhHIj7tHtI3IvgkguaHWp6bSyV+je+7",
-	"6DrOf1eZuRJ/+ed/OaCeD7v7FtBaFrlY7Xmofdf7Ydf7/etYFEpXPuH4IHwbzb9m4oWXKjeDJWtFLViO",
-	"VtQ6oL9gOq2oBeOB3/rXW3IF2NR9agH+dd/968A/Oz10/zrc9+/1r+lkrMl1fjmX3y0wt96qQlCCsmjD",
-	"/f30cJGXd3oOJENfOKOVyxt/sH+wVR75qNsIaRMRqMiuzghn6SdLk/jGyzJKwiBtVRnmlyUc8gyE5LFR",
-	"k0k6TpUuUIKuSgU2Ju14bC5lnko9VjHG9KjZvFhGJCDT1bZkndIKWodu8D24jJGIWW9E+SuGiCFGhYhR",
-	"z7CodQ81aN0NFmw5JnoxkkWj1leKbqAou7ervGKTKUyW/q+V38aBhWej9ureg29wTrt51pu86uHOrE78",
-	"mRYzk6isCwA8DHqRqHwggNXIXPzhvB+J8/1vI34wIrgP8Qd89t1CJrks0rF7LxLnB98eCW10lxvA1q2Q",
-	"VsQv4J9sGmmzfKxFrI2md3s+03uEv8adSqzXduEAbDB60LQQ6+WIkwbpAdGrSDVCD4YzAXipYiuvdtQq",
-	"D31Tv+43MZNFnl67jsNdi4T96b+2/+7/9//6x2/+rvOX/8v/56f/dyRyc4WrF7xHO1dZsjtbu80LS5bs",
-	"zReLk7mldymibxLBPra/Y8mkCZuL5GaRqItcKQsrOMmVSswsEhq4lZgHxprAoURhq6NLldtGifd14GuE",
-	"m0HvE4Hy6h+hVBTOso/v7+33+r1+s5Weo66MvulCP/Evvo1a4Ja0TVbLcQG+DwzHpYHQ8NjYpo2ztW0d",
-	"Nfk0LZ5m8qKJkkyVvEyVLUibvKkh1LTOpjJHU1yabIeMEYW4JI32UR+7U3MPpbZI9big+2udVjIhVWSz",
-	"ZzHzQvzGCdFbcBtQcW8cHv00Aiv4+kNFLwn3UvP9ACmhMvT9pqEjeb1p5Eh44W3ddH2Yv5cLJtp4SBP0",
-	"+ytnEUFEu87Ni+nJ+RZQLJfqC/822GtN2sikKCTQm1FYJIncSplcuAFH4iI3izmkJi2ZkqeamLlNS/a2",
-	"fQwxjPEVDKvpQlTixOoJLwA6oZIqgQYmUqh8lmqiKO0FadIcZVVhsZ1d7fNoMbxpQqf40tvAMmOTDTTV",
-	"r3miLlMas20v9647kRPZ/+1/uxK/EVpc4YSFHctM7Txy9BndOHR6i99HG5BBfiCz7OWkNfjDNvTl27rg",
-	"+ypXlkE6pRaeOvvLWYmHIU9urvjgkR+AAvJG21O4mmzcAEDoVp1eWCMToF935TS/K6cnoLat7sUZvRqE",
-	"V1Wn8dXJVy/E2JTa3JrIIG8wWqGmTjgabUXmvua3Pblj3nfjd/wa2CHwFI/GUidpIgu1lhj5N8DmPja5",
-	"Q0aL5aIwsQ8fQh3mGqg5Noz+7yx9o0QbVR84dWSthiUKZIc1H3e2JlxEf07cKJuol5srmAd1s83vd+aK",
-	"O3dgijJTCcs6Gk5allpEVxR2MYP/0Q4tMw4ITLMk5Ge1/R3+xn+yepFfO3AqJRbWYa8iGCsBV1LQCG0P",
-	"3WLMQ0OeFo5mhEZ1ldz5qLjv8dQYq6yDOLOlih0RqKV3I7CYQGeA4es8Qho7CcuDyAr6uaLzmNRm5ad7",
-	"5/MKhirtG2Jl2PmfVG5GU6mTrBFUFw4XvFIlBpbyizkcUVypHCwp84KDF3KTLMZwjVI9SXVaKHc+j8iY",
-	"4NZFKyFzY9XNoSUE5kYE3It2q4JcVAXMc9o+0z4niIWnunn1m2iMk++b7mR9GWsK/So3qSicVT6PClTV",
-	"jQMdeOdQoCF7YcwbIryY7CSNkr56rhFVrCwVzTAwgqxoXo1+ZSCLJzXbxQ4Gra/BnopkVa6YI5ABhbz0",
-	"nKBfIUJSy8qRvmfpkwBEU1JkbK4mRGcODw4aMhq3Dc0/3/K98ZbvbZtDcLHle8v+tgb55i18pp8aDrTY",
-	"JZpuTQjMzJDDGukM6r3bGw/OpU0bY6yWHKbiYp7LjKNUgz8+sY3861ZGPWeavVm4WsxmMl+SyWCe5squ",
-	"t6+koPXKS2IqYwXHuXqCybUlEGGz4lYyWt2wgH8oDeheXs+kLUZhPkLzZmUSA17CF4UsgL47GUEWcTXm",
-	"hYZjtNqCPX0dDuBt9H15JLOs9XYlDoaW3h2DiEIKg6VtmlawyWtp1PPU7horeuuTs4M5uHaGVmw50o5m",
-	"Jr/xLP5O2heGTDgBeutNX32hrosAaXVlG2yr2lwwnm2W/IvQxLADT8Bwygo7oDsvk8QOApxRsk23m8yr",
-	"nYj9WiYj7CyzKMZmpkhN9MbcyUKjf/GeFf/231AbgPxP0h+HWtkinTHIqR5PTY7oqInDwyXXvOAAhzLc",
-	"phIaBH4OF6l28nVprx6/6bqgDZVURSthCzC9I1zyUMfcPsV6Q+h53BPHJfyuLXKJKj0slXWZCGTut72h",
-	"fpUrYP4osqFsRsIsqzMLS0NL9aXCyJq5fx2N6lAIgOhTDJFcOhnhmxbRwBvdN7RQq5QG7YwQvaoyYvf4",
-	"YpgkItr4K0yfkmkYYgXeg4UHbc6qzoDtSRRM8w+L5IJM0+vjU1cN4RhoS/Rw5W2U41fH/0rllWO25tgB",
-	"hST8ajJCTBH8BHOJ2XfcrsYU4UaM/KG2Pew/7ohccqym1DzjplkGoZIb7QUwY+mpWYNt1VyMrjfUNwCG",
-	"m+QSscCFFJm5qB1aeZ3a5nhQvnrQuPMOu2ChhGRSSBNuBWMcuchHm2oIaM639BN7gnMStO8fnvmO/KNn",
-	"rsfn3GH5su85LAYx4q6+3xQNvWkb+DJvzR848MebNsvGPz1c23pJKrYUHvHG3XjkHe2EQ1zSVrqubGWD",
-	"oMJs0uVHkTC5uOG046sxvBjzwb9TM1kxVcW2Ij6+O9rgNGDCPtrFgltjq/WTVN6OkCxVrqubRG2AkSe1",
-	"7vKWp6vpJKzl0q8qlU52CY9ydPqSdDipnREk1NqaVTvU5YLXSJ9rxxIjhuE/FMaLJrrI48w/ePU8EvFF",
-	"fCTcm/jT3ECAKfSvrucjK4uFC3oLGlz26eXqKyMzmVhVHAmrWJ9kzdM52js9cSxiPqZ0+LHcwVg5dM7y",
-	"wAujUTnlo1yZYNrEC7hWhvOQtGl8nIooDl89hzsjY15WTN5T4jyT+s09660vnYFIC04hKD0BaGbADhIT",
-	"OocqQcervliYbW3Y8Om5Kab+pvuN5owUJW3RJVuFdYEEmHCiVYo8bI3u7TntjRJyxcAQEqwdv1yr/hKB",
-	"3e38v9RqxdlVlnRIUnmhjQUpDI5E+Scuqdel0qIGziva2pCn2uSwobkxJOhVZEY83PgCxXr28RUX7Eub",
-	"vwm/ieTOxgCLgKfDpLBfLzly3NGOjqNxPWR1q3AMzK5PCex000dNPTpHY7OkRNdt1za9O73R2Z3Li51H",
-	"6YOzcb+acR72+/2ffmzXNg7DJSqr2tmr/Lm7a4/Mj7vPgGjQ1oKGB1IYhV02Y5NnS+E+sIRmjR/sOjcy",
-	"1q7z/dYdpOg78dXM3Dl6p9QeOjj1axAsnh+jP5rBjqxZteDUrVyWaOWiN5614JqslQ7OvJ+x7nrG/EGs",
-	"GQE8wye3YNDfnLAfR+Qxjo98NqlArAJNm+i0gerbrajlUkRw2JRLu23+QDnmV9TqqWs0+Om4bD94euq7",
-	"8pNnw8yuKcaVCMY7CEusBG5t1x4VmBqV0Ymr2calwxpf4oiklCQSyDkLM6aCLJbObtr2nYUU7RbOc5fx",
-	"OFsBDTWSx10DDm7v0191yt/Sq74BHrPB4/jhvHShO6zBo1U98Bs8XE2k7jEjgzTFq9EvYoJp7VjNKFUJ",
-	"Y795Y5ho+9y03zAdJAk/gB3pHIl94irkG+7dDtyt32/E0HsSBizuIMXeFFjTmMdCpuV3giTYHETmxGkK",
-	"baeROGZsK/RnB8K8XoADjc4DPjfgTzRx8/KbphO1EoMG5oAR4SiUnTR5bervVIZZCajaqnBoOPTw+8Bz",
-	"zD3WBhkAOTRfGn/itlOe1uzF9rgulU1aVcXckWGmhh1EYr8LCR1JY3jhkYfTWf2yflHXIbs045WsnpeN",
-	"CxjUlNthCcsbtJUpsbZdVcsZz2k9jEP9/G4XmvJaXRcNUSnky1XkIWHczTzVb4RkS4PSgGXsVrEMtQGk",
-	"O660DBlh8G+OI5a54k+9xF65S3czXheEC70FHdWNfLWL1bT3Ln67IVUNOA0Hi8t6qLgNY8VFnKD6rznU",
-	"e0TsMh5Qqho+4yrpM4M+KKnFVGaTEmemkJkLCeV88Gr0OBR2jifqauQvnx1NTD6yB1BffH/P/vGAwrQw",
-	"xoIcNkNNPeOwwSxF+d9+8XAYVbMwovT5HuJqKlnjJIHjNw1rSz2Bl/8xN43OqW9cw/zjU3V16pt/avKz",
-	"A6TPztW6Fl1DCvCZYjVMMulY4aqBpxi0klIVTQ5vk0mz2+R3SmbFdEeaUIqQbvXMGzqIyXLLpaF+X/6+",
-	"5YZwSh/XTzl31XS4n51th/pSP/kEwhbA7HUD+xqjz4Xmy40Ic6uCS/n6CF7eNlJnPQjMZnyx7XDNVhrd",
-	"CDC20uYm7JRcjQ0wuB2a29We49FZbgjeW5l5xfpR35ja0Ms1CZY8KmFReIf8cBqPZClKNKXMM/iW1AHe",
-	"RuQCoSOmVJFLOsv5pNYyQj893Coh9Nt6jeF+9On9t40pos/0PxCW3nYVAuqu+BLpcyvuF4pb3zbAYD6D",
-	"AIZcnJx8DdBT1DrUBiUfPKPIBCFLrCxhhX6StPgjCuVNk7saWkA42IkS0xPOZ/1uPOK/oxLZknlgvtAd",
-	"76jEKdxD8G08Ez3G/qsUAd5uxKf+k7fANWiNms4ec3NfGUxlVlHMSNsLQGj/B7eP7VQMZ9I61XdL4u4P",
-	"1N/ieF5RA7WnT7G9t1HrTUqVC11/QZZdeJPT8SVcYv7veSuqvIjjLm0A7k/ahVbU8puz6xROyk7OysGU",
-	"V+bk6/DPk/qfn7eixrY+5wH63wgieeXxmZuAf/LlCT/7FvOr0DOzA0j+Km03pK3cbM56x/N5010vI98R",
-	"1Zew4kJGTIW4ye5hJlx3Hq863iC0AWxpGViRpXkN+DQi2Wgk8J5ulxFPn8tiPL2dcsXDr6pXtyO+22u4",
-	"dA/sDtEhbqZ88GoVNG7Q6mpLXVrh3Dia1rnS/g1K4w3hwYQtzJFoLpoXdSvQJiA9/aquhm9nW6qmkG80",
-	"ppZvrlkOu/Vpe6eDtttB2X5hy3VN7c+zrH8dx/oZowXsqLOUE/V4A2UaYOiPJaSO+JwAo0s4ykjEmbli",
-	"OQWE29gjaTS47+nrZmn/JhifJv8EStNmrtZEhvsppVZw3wwuc74Mxg0NCIKjaf/6L//8f+1EQtrSaLMu",
-	"tnQlMogObBmuksEphl6pgqW0y9m8MAWUnFtZx3AB3eKtrpG3Om5TbcNc7bacdbsf4hcxppEzGrsdbDqC",
-	"z2Wh6MDfStrfCjfFobpL6zEtj0rTRK7GKr1Uye3Iw60oWRJ4XjZ95T00W3kU64bjQDraUiZq8muVlKRs",
-	"sXEjS0iF3ajJ62lotXP+j0zmiFtoocUm012DpeMWATfWDbg6JoiLCA3jgThIaJj8gswyF8bmfr9NOZF6",
-	"jASNqnGVbwPp9tiB07tAeV34NBKGd4sIr6We+GyxJve8EPE4T4t0LLMRevhi0IB9KN4maNjaFrlWxpvx",
-	"/ABrbn//s8P73QPhvmHfIm+LVkUd6+96NN45Rqsyq9uMwy1CJJa7d78OoRyyT4upWlKGqVtOVNivpktY",
-	"494awPN6EYL102HdStBHUHmVJgbruDP8cmYatPxnJ78TXx4IPyo6apG437v/04///k97Z7v38t3aXppO",
-	"dST2+7fryaYXM9ksHvjd//d/wkvjbbR4X6op0DG2M8KsLuDaW4IyBV9tr9qewUef4zfNGdH//k+ce67B",
-	"LMUZ3516znYRgMfqZD0GQPtqmo6n1CLfA0LlOIOKSqtiQdKi/Vu5c9E6orB6njdiPT83F2kjMijBu9+z",
-	"kL7BVdkCA6WzTjrT5EbL5AsfjLOTjOKgpW9E7K8Xp9u5cAJHfJC7JQxmWJkKFtAaQRz3qEQ4aQ6SgHNQ",
-	"5Au1kvyPbVgKBqdGKM8HQBe7aqks4U6mcHgmnWbhtNHksEX1pGY0uVBV2ybc9mZwsGAdUYDkT3bQH2vJ",
-	"H9vf6Hqiwuq1fkI4HXgH7Mr2YLx4maGA+sU01Re9Vr328feN7ZZoBTDxi/RS6TWoYTWA6LVHCVWk2IXU",
-	"xZEwOluujHvma/f6FtnMHkLwO/Ose7alIZWu8BMasgclPvaNcN0+2jV5oUZTs2jK7PvCSzxMHxPD4ezQ",
-	"8s7lC3ZDymJE+9XwIo4ppSEBTvXEVF1VFUfZtnGDNr3QsmiufOOIRH0TPcB8+bEojMNBF5L1XvC/czk+",
-	"tiT1yg8qZn/6UlIQEtCaESRm+qe77P6Z7+G4bLT+E4XQHuvEv/PtLaMFg69GZr5VcrX/+iW/v6ZwQhBb",
-	"GG7LTYgfbhQN1KkGtOHJcxTysfUnrfn21MA2iKc1MXHahFtkrdOp256LUEc3FsZxza4f6y3tn7eQCcg+",
-	"sh3rDmuezPNUj9O55NiUubEo3Il8Qdk0M5koDlVHLne+LAMiI4xTclHshfN2+NKaOLmBaGD6hEBihV2M",
-	"p2UgPMbKYF6UOFOFSAvPAXK1WugHaviwjAFciKvCFQZoLYQ93b1EsYudvyptbMnSy29WubkrItbvPXrQ",
-	"Wyc67CQwrLD5m8PAtmLnZdAPI0Oi6T1faNIHpBZmUXTNpIvYTyslJoaaKqq3Yx9qz6Udw/oReDIowBgL",
-	"ZLRLwaFTKyIRlIW5lTjAl7guFbwI2t344u7iA2j4mdEXHFIdRmm6RSVABOfJAA8GabXvGk392cPPDhtL",
-	"ud9KBtneILlBOFl3usDVDwZBWhAkX/JKAh1iegLU6VyFKIi8XDUStUb52CTYEB4H8n6qDOcdvVRLksQc",
-	"yPi0DppiICQTqXuWP5VZKQDBoZakrd3zM2i/enlGtWhoXfa+T5O3e/Rjpydi10w8oAuxuQd6pBinDNWC",
-	"o0BH5D5zsyiUkNpeqdwCORZaznzg+SKD0j4NMlY8IPHd/clFU3U5EK1UYoUUWXqpXGfl4KDsGgHFOVIe",
-	"IuuPjS4Q3iPNIR+UispZvAUCN8EiaxULXaTAypS+e/GwUTD8hYqELA40y4VN4t9G1+4Ld/mrlyAmJ1Us",
-	"luI34rwvfi3O93/68fpIxBU4WP6df/JILPFQV7+D/z346cfrn/4rlRP57PDTT7sHQM2/WAFlb4NDQZ+r",
-	"/OIv//ifX8gc0mCSIqqknnciNOpQgrEe6hWAjoGID+cZDS8RvwarNSSRJp299j78eb037vzxvBNVkveH",
-	"+g8yEueRGEci+fZIxA+2aOKPF5EIPovExbdHQy1FaitmYiELxBWMBBdnYqDAmil7LIaLfv++En2qP5Dq",
-	"SUamsEicV37jolqcqIOp9IQBSoKapJfHIhF5CrQ0Gmp+pkQCxBGA+44EBgLlqbLMy89h4FpdUGb1BCkX",
-	"NUAtD3WSTiaYDIQ3vBOJi+q4wHE5UwVUhroQvxH7biUOXz3HylUIX0DLKn/68fqP57x+sOBVtAL/Unsf",
-	"l179sf2Xf/6X859+vO4A4tGarxjjgD5ewhFc04LbtmX/28aDSLI6gRy562SxMgBE1sX7e8s/HsSRjwtH",
-	"/CCaHZSwmimpa6Hd1Hwr4n/wHWpFLX9xoFzIHO7vA/wvNkaAYMEEVx7wjLeVfGB2z91Qgr9euuHgsy+D",
-	"MeGDp2aRv3ru/0ovVfnXKx4o/vHken4WDnb14Use79uoFYByrZoYpKUaDQTIFQdF3pBzTNKsULktATN8",
-	"JHrgmCJkrCy1HjRissiJF8kLLvb5znVOmjKbXs4VKjRNEoYRuXThAi605gjjcb3kRFIPyDmIv4oVNuP/",
-	"ENeCcPcPPrtFFO5/QGP3/sHDZmv3K2TSu8LH3SJtN0kt+J/WhHi4X2+TCQxrMJsXa+CfJossG601pmVm",
-	"/GbdmDLnbFj5KjfZTVhJGy0O1HI4Ntfm6qT8GIMlvDHrk3b1FiaWuTLzXUCcsJ8b58utrh/p7Qwsla0N",
-	"LsoBq/XBRWnYeN7cjQUX8CXORQAcznpHDz6tdtSPtjksXpwFYc0WXppFsvqd7LKAn6OmO0t1aguiLlvW",
-	"lDKZOvZNw1+nZfPw55fHx2UP+Ha1l4qN5HCThQTTmr9bKP65yBdql7Pul7XxZNSDXcv8jfeMdFlGc9nm",
-	"hMy5yoXSIPb4AAE8v4hpxBJ4jI7jtLA7FnwIoy55xjder2C8N6BXlq1vk6OnOQ1cBQFuPRFjoBxhhYFM",
-	"hPFx/OeARFkvCWOSBL4fZjmanIPq4JlLdyQRTCVBudJ2rK6LXM4NQn1gSJxVBUkGBMAESXw0nMxQyV33",
-	"13fxIOi4jE8weWMYwZGInSQMWYaylIsx51E4xEx4z4xyYwowbrhJ6xqGOCu9Q+3SBSC8MJd6PEUXW1Vd",
-	"AMiv2Xl6sTALiy3HA19Mr2zS10epgHBic2g4Qx9eUEm2czTU8UJzWN7IBTzSYEuFpB7jCV/RhvqgRMQZ",
-	"w1UtH2F/VRm6M6jMaqhT68F2fSFAt9kmd2fBvR/Yd5D+yfFU2WiorVldXVrDtFZmNjiWragVnEoUostz",
-	"1Ipa/sgE/4awBbfp8M/aLkOTlV1C4ldfXt+xXyrfQ/lkOzIe0D/4/pQHUT4+ho5WHz+pTrXWzPOXj5se",
-	"fll5+EW5DMFDc2pM8Uw3DMStyyktS/nLV26BnpXrU5vAcbBQtWGVP31bIV23kxb+OmO8N0V2N7CKW0fo",
-	"3w24+KZCuVO1WiIXPAnbFrFDa/v2kDP0/q2AZ+jT3VFm2Jx5i5Nyil82hbusAcFpwrQe1UJ58dPaQtQn",
-	"V/MEuxlsLUXwwHe+iZviQqtIfeQ7QR5eBawJA1JL3sF6v8cW5OAeF78JT65MMytt19nwzgWwwpDvLY70",
-	"ljX1guSCNh0dEVfluLhzC/FyXZG9tDl5Ow3SSDb6g9x7wTcB9GxjDGyZjgFBSOa8kKn2VX7iSaqyTOXN",
-	"NXxmSurRjrndLoq7KeAH3gGp3sMvBKVgJKHSJTcXxauVpF8Vs0HCuUaBso5r2pRjE/EtcOcrqKEAh93J",
-	"pu8E5YfEYyVGvbG0PvFxVzHGr2Z9M4L7sHoUNpMV5py7kZW/poSLzWkWr3I1ly7/V813RZvQQmbpdwtT",
-	"uMM0l7nSBQWBLOYYokVYheLSZIuZioSS4yn/IVItZs9LuNfCZCrHmgI//Su47MaFJADxppoz1O9o9k7Z",
-	"wa6VwmTc0upHGwv249zecRDUxi2HUNvyYFlWZheMttZp88kw55maNaBWPj0Rjw4fPBRzekNQFLVd3aN1",
-	"+QjoC7/CML/cOLxfZp8ob5PtnWx5zTGia6oJPjWIJyezNBEpeDT5vJnJhMIFBJB4ikWH2tnb8zKc6lP4",
-	"uJGT6RJid1UY5VmJuSymjdPhF1jmXNsAGH3+rss6SfdZAlEuRsAWczA1aeQUX/Cg32/sy64BI4V+fvf6",
-	"9StBL2Axwwpo14NHj4KTeNhvrIhapEXWsApnU5MXwhIUqKcVfH6glcah0oNVw9FXp8+cS2Pp4gzCxhw7",
-	"X+R6gLLaG6XmKh/wOwM+IXGvVbWp3pRHj7+6OQawiRvSCCoHZ/D9lhfkNQdOiLQQ57mSb5qrMqG9SOXN",
-	"39eO/EBI8bdnL78Qr+gjkWoHhW6SZSTiPax9skf+XY3/o/ivMVBrfhQPNdzNk7OvUcSN6Y2Ufx3w53Km",
-	"+HV29vqoMzKk3IRXQPO6aWXLqg47agWXzTDRJ1+L9q86jXJRE4w3giXxy8VyjslcOhDrHM5ZIa5LDSKv",
-	"hBdZMclksavwf71tmbJwUa9bkZt403J+uZAZyh5nqrhNxmUYaPmdawuJCKUMYG2xI6bGCKw2KQTqHWV4",
-	"vsov0zEg0HCwVUPyNhnesi1kokVW+Dkhy3CFiG7xbWpH4Cxb5OoWH4P3Y8tyF/WPm6D2T11LuxSDCrXP",
-	"qDzBbBgtTMVi6szjmFaOVStLM7kkCJ2wgnYAvV8onYi06NQU5lxRCQTdgCd2m4z7O8wqb7oKVCZc2V3h",
-	"SsA43RDzBISge5WnaN4GkokPIPouFlfTNCOCkMhCnkuLKyVpwc+XGIXkYLxEGxuxHGknHvTvcx3eU1Xk",
-	"y+4xKG71WNayc9afsOMdYjpgMb7h793fL7GJEk3UrpNaZOK0WyvaU1O4edmOyORFl+X9At+0GJVwYURh",
-	"XPbwJL1YOC/HTp4thhwsN/LGqj+rmH+7wP35jjbD/FEg3ZozF1Sl2NnxmOcp0bUd6nftaOSk+Cylx7eH",
-	"85k4Iah6VFAqmdelEhJl10jL1eobDSKuyRt/qm0LDci/X2t5G0RikkLHMluTE7XQGmIyqQbshrGuf2O9",
-	"+bX65Upn4eCq2xf5E9N8EjMlLdqom6hZEDsbki92p4XR1EdA6aAtiCSJhUHfXyFSO9SuNgHX7qmWzaSw",
-	"FFc3swTcOBIxkDsoABQPteMtpSTlqhxE3EIkFnqSFpSLbnJhF3OVW5Vw5rsc6q267blpOOTeWFiIpMeE",
-	"5SqxDdaGikXw5FtRy418a4KCPb6qNMgPT8N2+dk3vnncwRr12+2apnq0sBvi6IlYI6GG/dTmag1OjLwY",
-	"WTU2OlmTsDCROR0Ica6mqa8JmYKOiKmdDjJD2oIyNqvZ5Qv9RpurNWVaNlptSkjjVYzitBAXqiDTPs60",
-	"vdAIKwgrHgHfIsgOUp0Wmmsoep4dUa1w2VlDu3BvGqISGaNNpFp0u04a6CLLXuQZC237FY2csTK3BdF2",
-	"fUdui5uvPzn1v3YIFjsqAlyTi+k3bKcu7EBc/x//cx9WEi2ncAPT4Pbes4h20AmB/uHfoeFQ/PlHvpBD",
-	"LWdYhOvPP4okX4pJLjmUmSoiFmWVr9IeAu1HIicXceSAS7IVFL6hLr+Bl2poEzaqSMpeLnYVTZ+d0UH1",
-	"1UUdmRpqh/Xp3Ea+G1D0LReqquFdrWhWcjzOVZIW+HsEgwX7aMFFyiDBbWwwhDW3EPkZzJFTJIg0Ww/a",
-	"DgpHYwnScbGutuft3LUEAjFaW2mD9g6B9ScepGA7ZOE6SMkWX3lnSUOkJ3R+axlnbfinmYfC5Z//Sytq",
-	"/fnHbYG2cUwvFlmRzrNlK+IHj9PLNKGIhfUFTNw13tVcwPFz9L338Jr5VmKRNwBs76FuUJzrrfors9NW",
-	"595vvM3LJTjcNm8vsubNLtR183as3afr/pZ9XvdH2znqr/ut8u3yXNfvYtPN84vm992tC0+Np766JU0g",
-	"K8FhuMHZH8aWrIZCljHtvthEmxP2fAQdOS/JRDE2eU5DWeNdrxeE8f8v4Krd1d9WtuQ09NTVK3yVvl0H",
-	"/9pURWMHzbaM1Nwh1AcHuciKJ5fqViUax1OMW0CwQTobmHKIsifVL+MsiisqO/782YszTt8rjJDjAqop",
-	"YDlnRraWgkRDMZZZNgiK4npnoHPjRgLdv5QI46SDsoa4LxnEn3sLqweOoIxfMD4BPx1qehF1PypCQc3w",
-	"pNoIlEWYRjTrzlGpAeBUY2DmiYhJioy5jRSZqi7u2Z6If/uEkjCpWbv3Pf1jlCZv4zIuE6NXIalUYkYy",
-	"ShMWBepGjnzHFdF2aWcsWSW4mYTjETvB93epWtkIp7azjWJdBarXq0E966tQrRr/OdfMCaurVam2jCxb",
-	"E4bzOjyA+A6pP1rEFJ5AKxvvQiUWWbE27OZu4mtWDskK0jlljrCnTI3oOm2vApenyTcUPEQDxYlrkmLp",
-	"L1OIqLLNpovXUyZVrOOzkRqR7nmouMJGq62gvwMzydvo+3Kzs4zQ6jfWoArIyc2bWemp5Sjezd+FmpyX",
-	"hPg++dOa6uLTw5AbPur3H+4/enTw4PDhYf/Ro/2bIpB2rM+HB3q0JvTLqu82q8bodFAAuJpq2DSrLLEM",
-	"UmiQAlcu4ztPbzXAahcStp2sBtNGguwB2ong1k/KyiEP64753Q0XOSgkuDFysxaNVS38FwRXbQrTqtMI",
-	"R+/WiHpVXtF4XdFxwVB0krBAmFDSTg9EnC90j24vgYguNJ6HoaY1sJ3I1bGwPZkksWjzX0ImCVkKJNev",
-	"oML6Pa63Chke9CA0E8b+NQ9qQ4X3PS5BD7pPcnkF49FD3QCr4N7Qg6oFE93LqVPS654cP1G/wTgjt7M9",
-	"X/l1ddT+oR90K2qtjnjb+rCwFacLfeJGgw+IU9njJHFPyqqx8NfX1fHgsyfBcKgRN6Zv/JD8YXmqVPIB",
-	"UrLwYO2qt5Jc3cBrp9KOZuZmv7EriPU2akG68Wi8ZfJyY5IyCq/I3ExJMXs3hl3wzKsjCKZws/bmhI6m",
-	"ZC80nE7QTmpylTgUbbrOA6bf9WjjiPPftSGcl5ilM/i3GJtFRoV2zxXDJsMt1qYYubwrcj20UdYmvwgj",
-	"SSWVWnRHIq4RL2/kXwImQJzakVkUNk3U6CrVibmiRn2NLW8JRLWI/bWYkcafUb64L9ZGjRwFqgfcf+ck",
-	"6BBFgTgvPVYj9zge6nZZKCR1FVOEe5G+x1J1ZbtHwipVNlb3D//VZDJh47jv+M/qFrcwRKO6Q62o5SY9",
-	"2tn7AitXyYWiR5U8KL751UUKPqX8p8qDL/2DIO+JH9RynrjDWr4TPW3KdQoGGOY5Bd2vPv7CnPCCur+L",
-	"L6urSs+fnb2kpf3GrSw9P+P1rXmfqoa8XRM2knqO9f6nN6ZYY3BR7bMwQHGdMxU6c1+vJ2mnaswJ2e+Z",
-	"9ZSmyo3IzIFK2ODjwcc3kmqH87ejd4dBmBI1TgnPb+4rH49V3R0Lrzahtm+BQcwf5/csQU01Yw7vggnB",
-	"I76ZnUPHj93bG3yFXwQY9c2YtqvwHbXN8oMKxPgb6gXXxhem+JNP3Zf735rWIQiV/5j+PuUm3pYPbpMI",
-	"eRer/q5FZ4MSuA2AsQRP5MrHpVbEEAcQr0KO+6k07soiU1+n5nbRO6yWrbEL+cpOlya7dI7TdKZ2tBs7",
-	"9XvVp4JzaMgMy6zywuV+98CKK5nrVF9EBN7tfqIGyInZHAfgvCQ35MEWuclgHXcpiem9EDgJ/10ULGrz",
-	"dumdy6qCYiktC6+9O7LO7gTGzkiraXNQ1K28sjfjlRMM51Vl5jsAle+gRy00CSMNh9R1uCbRt1C6wLj/",
-	"ynjdcukQ1u8fiMiO7eW25HGhn2LvEKXWisq/T86+RvK4veWr9F/tlghWWlx3/Wa0PSa3WQsrdRs+t3sq",
-	"++kiyGFvCM4ko5NDfLVrrbtVZFjrTwRsaFIvTkHxyNvHTFYgbLealq+peROwCprlvN2svn2Vw1O3zvmt",
-	"8xelER87HH65P/6e3iQxOnPPh5CDS9LR4ImE3xAWxxfHjN6dwmx7i5t2bfsFxN4/QGXDHazxtwEt2BWu",
-	"YHMZMNdatKkY+unitpUhb8OXPySlDgnvpq887t+7EFeP+V4PHVihdKzZb9Myv+rb3oZan2BeEMs468n2",
-	"Pet/tFS8aibBloaxkFjrAZzs7pWu/77TE0/keFpiLEvf9j1bhuJhnKcvWS1i3xcYsOCExM4u6b4mc2Tt",
-	"WVqQwIGp1CqhSE0wOTEqFyKgL4UsAPCoPI8MeOw/48hj+IKzqPFDlVAcII4RoY48PrlY6ExZu1rsJC3K",
-	"2iZo7tvqmNQOsz8iD/pbYLHVuOMq4SYUs4Bw4+wRnGVrEu7YacM5frAb2I1ntRsYazmhtSTJo7B8EMvQ",
-	"DnJHxUbUoPbt4LNd0bnYn7glgksp2d0dYtD6QI/9daLqFtEZa3zSFSAGv/pbtHezwNdUDDOY3cblvFV9",
-	"0w9VXTTJlyMXl726SY/zJdDqQuVB8HbhYqIFFi1I8mWX8JEFVq67TWmC/bVgCxRT/u6gDdSOj8jceJng",
-	"nVvggKR2dMeV6V+vdVzRN8AwMU+X3WM+WB9NTvBr7EcUB+a1es0mVKIJ2rHWmbcehQXubwN44kMdKCWg",
-	"wfGIzyFQ1GKMvUMhSbWIK5/iHsYdTEemwqYBhkkc7nZ8hNVioDVN0JA7nM2Vc7Q6iO0O0rvU1l2R2m7h",
-	"CKj6IG1zVCtJYTTFezbwdJ7ncvxGIVbl0pXlqOZjWdF+dvL13snJ16VDlWWqR/2//ON/3t/vi19FkB2x",
-	"54TVMnG8c0SHUQr4HqvDRE5so9EImzqPBaYX+dIgKAkGvtgSHJxM0pBVwU3gL9oMtZkrsIxW0tgwx6yN",
-	"o4hhEzNVqLiDOR6Zwa6MVlGlp8KYnjjGIeNQh3q/L3y0ik6E9N/COzJnoRCKcI7NbGa0mCM5HZN59smr",
-	"Y3HQ7/c+66JxjG6l7ZAMKxFYYjwNgTyB8vLF52DE0m/cFJLq5tVgNDLl2RBXKYbZQeUlRCNfaJiGStwp",
-	"CPzWaWHdjJuNyeWJ21oWeuY+aZAaD3bESPQzroyk6Y5VJLBdjc18wJyLO0hRKv0WSjvF4/3YpHeKJb4B",
-	"Z++4EVOsmsF5IS8V5oJicC0qdzHGj+0Ojncb0Pgw1ng7FkvScSN3dQWG6nHEY6wvkJtZ7w7Dlf3t/Q33",
-	"+z7CkwNkQBegDCHwZVwORKw0RN44FMEyOGgHBMEbwpiTGyKp0wTDqEnBx/yFiVJOLEnvOEzUyTi+ztmN",
-	"ZOnsBIj3+wzIflfEws0zrmZF/7LinO9CYbvzyOatLGpOMOOgk3cOQK6E3t/g6QvzeeBCUy4/7K7LwcZW",
-	"tvcBOnG22uFXJ1+9QGQgZwBkznLP1sglJe1SZfC48hOE4VbXJSaC5MHHUTxK9c1Rj7cLmK5aikLtfTuQ",
-	"yl3gL9fFVa9Gh9euZMPub106NZRf/hotXJtuYyPw9U5GLerd3s4nsav5/rks1A32+7tB+T4bGwLcC2LO",
-	"7aBED8KlGcAB926vgY86x/oh2xbGg45OF9o6ZCF6QB2cUvv4CD1P1geS47Nj6gjGW6WVO4d0OEFhnkms",
-	"S0AEj9wO3HQDBBmqTbdHwSkx/xrw/Eh7bi4vtCbbuDkkxje1EUOvfmlQnXwfM0s3Z4ytroS0dl2xpBtW",
-	"iY0FDuFv17x3pALB6nE+Dg+o1v5ui0u6+4b8JmaHFVga/gp/YH35SPSrEQyrq6BNsVvZqKjFRowdh8df",
-	"7Ti8m7ZwrUDpBclmyB0f5+2kRwxj3pIm8Y2vYu6shDiHVKfsYRXB0h+glUQtt9DliXD75S9gVFKZRjqd",
-	"Xszk59Kma5S1f/8nt1fPTn4nvjxonx50GL9EPH/5WPxG3O/d/+nHf/+nvTOUmp6//BJKKvbpEVRTxAz6",
-	"kU2oyo44e1wG5paoltrMEKAFIQLbWE+umBoLqRZgDE2cK5SBAiGPmgAHR+j1o+bt3l/++X+9cpnl2Di0",
-	"jRkb9PYqDGHkBlUpoijS2RxTLghxsK0AeGBY4onZNFnIDD5j9CD6EurXiNj9XM45+CAa6nIVymGaCUqo",
-	"PAKorbMoDCeGOEPkQJRrGYBW5QuNQDDxDFIlHEiARTV6ZnLFEAYlaIDKYF1X1q+azAH9w9nhDrGgW+V9",
-	"4uJuottXseXTdkztlw8+h57Oksqz59glVFvNar+cctdnlCjgc712r+lQKF1AeIHjw+ur1ecoGtzDSvPo",
-	"U+evhS3SLMM9wODKqbRr6r+77uxUHjz4dLW3s98ddw8efCraU3VdYsdKbTQCwiK6nZkEg8Ew0vRCN6Zk",
-	"VSPV1/DRbbTR9SUFZ1KnE2WLNba6V3mqCzaTRIhxiy6gr16fkMPewKxA4UPjCtnUp4uZ1IhVBeRQUKHm",
-	"qbmy66JVudkq3qITJMPSy6g7pedplhbLXasuv6BOSumx9kNTUWb/TbVjTC/HdVlf4HGjHQQ2fi28t8MV",
-	"SBPRLkvu0kcY2LoOSwxbbUbJJox1f9QGnLYag70Q94dMirgAkDVXS2dlTbK5EgY12WhM+Or1yfbmAd/O",
-	"CE9V8+JgTVbCVy+cIzKT5/cshcH/Cd0ogEl///79R6W3Bp7fs4Jq2Do8MMYcQQpttKIWUk1ZxeT71Kag",
-	"oAF4/tXrkwFD1MEnlZvjS6cjlba4RWGRVCiP+v3h2y7946D8x2v3j8HKP9p//8Mfft39duV5p7GgKox+",
-	"BPNsPHMuqVdmmyx07i29k7G8/Op8ebNKkiat6mENL0TkyzZWLlhJIsLjtnpkwlVYodXRCq+oU7810hXR",
-	"glsUNfU51TsYMtwnN4aMBI1vHPe75+q8Y06RH4nL6CnTi1Z+CjKNdiuUGrCQFcBlTOBHOuZIXJkozQlq",
-	"hVXZ5MhHMjClp9ekFp4cQivSm0bbBLhsF7jq5Mp4fwyMN3ItH6v+3sTO6i2scrUty81Gm/hdtSBuU2Va",
-	"XrA1bCp1XEq0WW523KrTCzkTCebB1kyC8FAubJ0oV0mEtDja78h1cL6E3eVyuMQt+CCtHAXKzuYrkIeZ",
-	"idjubEGIkVqcKyG1oeLfyBFKyNhSlwDLFrWRWuHxb+kwkpNqSZMRbfTfRc7PVrPKU2hOpzIhEVTy3Twn",
-	"sKYbkaSUNj83tvDqCGge8o2qLnF4vl3ydYghwYO75cE+o1PhkpDX/ByCRKx55dQNY11JYH/MS7rRSEID",
-	"391dFTfcFgAr8EOhuvYBYxFL7wb1vOqe2BxPVA3L/QAhiSuLekNuYfDy/yARdZHHuUDCdJVaCrLzR+uD",
-	"FiK7qwP2gkPud04C2SXPkmTT9ZmWm297su4Hqui3G7jtbQJZ1PVcIrzGQo9VXshUF8stu6N8A7tTd86E",
-	"v03Yvtu+38M3G+lcZpphUudlubpdap9WStw12L5dDsZOM/cfgZFzXfgDgnzUt6J6DBfE8Dt7+D+lyRQ+",
-	"IUO78miXwfy3jOmxC4wbag7p8gX3tjwgdw8zzBAc7GVZcbM7+OHGlaRjEkyxcoKrh2V7v3fTWa2YqbiO",
-	"gk9volIM4zcja0r3PhdjRxxcPOVbVlzhNk9dL63IPzuDToK/n1O7DWO+heJaydXaKRfHdXqjlFF2sc26",
-	"3zLdr6TN23H1kNWtsPVTx4c5z8rdeIgBdv8u08AKTr1y6Vv3bC9kCbtINyu84rbR5euYQYMNsqQ296xw",
-	"34ngO/EVY/zWxneL+gs/G6O5g0OBi1Veby4vjmqdPwqpFe0VEiCg8lKnF7C3qt4cvTd2F8Y7vy/mt/3x",
-	"DjnSjStQ4VA3ndpK/VgZodVYyQRkvK+Qhb65xVl1PG/LoGB4+z1REs9kN64Dhf8elQX2uABjvZfbJ61s",
-	"ZOHB1W4i868ZGb+GNpMrJQp1XQR1X4+4HkaRm0yMpzKX40LlQJrGal6IQp5HIks1B/VKhBLP81ReKJGr",
-	"YpFrLpVStUxVbVqhvf6Pw+F1v9+F/34G//kc/nMC/3kCD/efDofXD59+++tGU/xrUB9uCZBwCxn/NqAj",
-	"a2IFghcCRSi1VNtGFMaDZrBllPH7Slyu7UNM1rrO7NjMdzGZw+tNHeCYmudp1ThXRU+cTc2VFhghACro",
-	"kUgLMZaaUSSxZB3mWmwZOEo9Rq5cBk+kIm02XgP47JYiDuTRjNCFn5tsDT3AYLzUFggZQPw8S8cw1alJ",
-	"xwpLN1mLhXpowyH9BgyGmNlWhv3RvQoj/UTbGRYODw48nH9adHrimS/9hZZO+kykZGeEO5ordru7Js6X",
-	"FBxiFnlXLZWlorerWe1WFVbQxMFsP6Je1mUI7XTiU0aYw+qDMFCcPR/2RFCOVLv8RpynWFW30xOeqOPL",
-	"3AxKSMECFmzghgOGuwIkP7hBIrV+OQ7797ljsiaXvd6zaPvBIR32D9e/xZZcQvsVz5W8VCUTqF1e0cYB",
-	"RbxpkTNTb5+gsQ4x4P7BppDUZvgARxzuQET7ZmpgEbAWBSafLawqidsRhiZolxpC2TVsj5OLJC1Ekcs0",
-	"Q5ZrrnRTfeVvpmZWNigAq1RfwEEaiJhcAFwIGe3PrhIy+KPKzVotldwb6sfk/iCvQfluxUrlzgKdurg8",
-	"a/FQ03hkhk5xlfG0aUiMdedOnV1QFsxQr/DJ6O4odHkmDnc9Es0FiXggjUQ1V/ouTffn0qqMqzJuxB6E",
-	"fj93L98Si62KObMyFore2xJG7zm9HMaBNnjdCiOgLjoc/VlKpC6hUM7UigLmBIDqQYClcAsSOdpeVnMh",
-	"E9Zu4oCvCb7VAr/yb7vK59sfR2oAvmkaR5Ev9NhJbjV+kS9UaYUnYGGBybozqhIptdiP+v2+WxEg0KDn",
-	"4fsmS5Qt+AWEr4E1bmZblw4+chdYnxB18kbAiQrQiTe0lZvgVzU4+f7gVQYYLlkQu7opYaJ6R94BIfOd",
-	"0C5nsNg7JlCtCVK2DafljFPLnU8mUZcpLploa/GXf/4Xsb+uMra/WrumulqVqTUoG1BiE8OyuWl/aRUm",
-	"jhurthByccVwtrASIbBm2PfaHX8VXnH27UNnmcEwoHWZs/5QCsmUiNLH7UBIYYtcIi4ITApz1KG1MP8L",
-	"FEREV1r60LpKgG8k4nxkv1vIXCX8XWYSqs4tMdwYmpa5mJlEZZiWpiaTdJyi/Lck9tuOJTR0Dv8Zw3+w",
-	"XYCsj5f9mGDXUYTlNiAcGZNxI8aYQEM/FV+7ACEyxSpV2TL0ubuF8tOqRfBGLT8RNIfDfyVcYNgqWOBW",
-	"1AJT87K/pQG6umtn3H316bNgMNVfggjflZ/O/DCrPzw3q8+OV558vvLkZOXJ45Unv1158h/7eG0ChvAB",
-	"8OR2rWOlgJs2M6RKbPMic9fZf0EVH1JXo6o98Ti+rjxyyKlmKaFe4Mu2s06hGoWS0OoLtwMRXG/M8rff",
-	"ldpqBgygQqpagZTCxZsnaREBNfXXZWfogF2xDeuMuwkpBXeJcKb9uw7QOdisrbWuGljyZsCKIIe1krLq",
-	"PGu+NH2Jw1gev+rmV+baRPLx/Ia3YrFIk9WwWNmdHHeffvv9Z2+74Z+Hu/y5f/C20RD3VWPG8bHAnGPM",
-	"1gBzZSRU76In4tnF3nMg2Av+3z/M57Nv45rhkJXZNWbD/1P3//zt9/vR/TXj+VrmqdRj9QK4wI4Zit9g",
-	"rOH+nv3jQRxxiURqTUwWehzmZPlAk7PHAwGWWBHPzZXKoYqRbV93ABui/9OPM3ndvo7E9WiW6s4fx/tk",
-	"rcA/sRk7k1lWSbmhsipDXYnXOOIuiEsCRxVtpipg9wHHx95+r9/rd8Luxa/FeP+nH68bkWS2LX863t/y",
-	"xTWphbXr4aptQa3U8X7jof66pAi1OFNEiieqBKJGCctIIEJMkyphpw0la0J2P5cWruKkmlK4iV/z6F7R",
-	"h/zXU/yexl7WXPoAjG49eMxtwuDeFcZlq5KR63NWk3TiXP3zpv3/1WNMmuv/9GN7gkY1kPA5J66zx//Y",
-	"lf9gS014qcHykZUaioVtYowiN6YIYPqJQOw6nu1Xchv/bHgetwgCAtWzee2Bsf7wq8c/kFG4tCQ7cd8X",
-	"fyXbxZaxMpuyjrfNK25axDsDJCnrIqxIhVzHFtesBELDcvCWIYe2cmgEAgMTx5tD9tyxXc2Orl6hcEuD",
-	"lGq+g0H5hqqosmXkTni4PhxWOdvMfXHTRjV8BvyB33QoKrXA7nOFFQ6BgVLcYYNTOjA/XNYo+7a3bmXT",
-	"a2UC69O5wayzcqFXuWSq0yKFBAzA86PKZmOji1QvUn0Ri/YJPA0DKsIRhcyRG6KTyN9vzyV9k898M5UD",
-	"EzRZm9ctoqluc5DCaW9v6aru7Q3KQLWLHbb2TrDX16AOeWvZlQS6Le1itzIjm5HnvuAc9cprkSCPi+j7",
-	"QOwSggiUhFuBzd5QJf6d+eMHjdjehui7oM1gm5sO0jeYHn8idZImjN6wyyFKLlOr1iTO4jyUS7wfT42x",
-	"64AjyeC5sRnGKRDgi21uZCavOZeecv4h0TBfY8XIZH6hbCHwldKBV8iMAQMwAxVbEwR+udAJWnZSK8Zu",
-	"tUIJj+EetSkC1WEnU7YpGoWHpZBlj9iHfZPO56S8EJsWwNaPhJrNi2WYUtCY6zUbyXPIsVjt69/+tx9+",
-	"dfrkB7ccIMN2xzIbL7B+YpnNtSLYNo1u1+l7pIibrsU3/sX6tSibqMxz7cnw5y7yB5m3Yf1NaUxqfK6k",
-	"Lbpk6rV8gGwPrAPXf+z3HsTiL//4/4S/ln88iPnnSsYJ5okNNRoFSMaog62hiZCtCO3jbKbSRApVCJn1",
-	"IvG3vaE+meZmJgtzkffE5+Lhw0PRPuj3DzriYP9Bp+cMFW5s0OH+Hij/P/1XMnXLoV61XwTGiWswSNDB",
-	"FnKcG2vpdlhRGJGZizb+NdRnjzseDhUeV6bRibj8LcyXvocs8Cstzh4fcSq3HOryPJmJIx/otsMTR/n3",
-	"3gbCd1SGISlQRiL2p2FkcJ9srw7nwatve64TplGEbxKcape27i0wdjGDsclzjCpXwkXACwSIc7Uzhnrt",
-	"FRJyZtCbayzmuBOMnjYVkgNeTAA3kVpMZTZpIlM98QSXg3RLgtXBYJzyUlqRar8co/Ix+GAya1bSmCbp",
-	"NabX2BK8BUBn8HCOzGQ0U1LHol13xJB7pDMQX8u8vYRj8+//9NN//enHH/6/P/7wx/bBv/23TiT+7b/R",
-	"sqDjBKaTaTo3Ao6N0SLT8DqSM6YsJHnCmlLh8HL/IpEWKsdlhZ+EFA4yRuQKOEVQjNgtzL/9N8JXnpor",
-	"R7CVLdIZtpJqEWujaVKQ3PrU5GJ1mnyVhtrdJbzJ5UjhcKO36Er7I372uIoFoykjnukD/Yv/PsD/Xfrn",
-	"S/6bnlv8X4aSqWzJlsK2p2Jf0BD838/05dl3efF3tWcrfx80fPQfa89W/l75qPKAkWv8369gXi8nL3BW",
-	"IeV9Offy905YcmVlZ9eSYJoQMTlxGvkkzbImtGZSjS2g5WwBGeDwn95GrSrNafJW13261Q+iStcb+RKv",
-	"zm1A4zctEYTETVKVJWXQchkCzev2XhesFo2sEHbK0e5mdqCVSihM0DG+wmAmeDNzaUvt4gSJ+rmvtCn4",
-	"S8j3voAS5kONL9MoqkBQIg5mPRDUNq0VylPwMhIDqpHUExxQJu4PhAQeyOllV6ZsEhib0Uok6iJXMGb4",
-	"VqkESizBBjx6IH4lsJy3sHOpLUyBguaQP8FuPex3fBxZqQ0FNoyDqOlQrh40j1lyO41zNwSJ94N9sPHL",
-	"m9PTueXVa4jBHuNFnhbLM5gJzfhcyVzlx4tiunqOY3hs8vRPKBkNxOf4Lum+YwwDdIGHAuP17KASTRiJ",
-	"mK1BCPkJrqS4EgoMb2AEKUc7IJeiemapgTDF+LrrZtuluD0GLCOFC3QrHFKpRUyLYt56+xa9zhOzOiXs",
-	"H6LWVE6w9zaMkoTBI8+X5yZnV0xgWPKiUYTBFkMtKz+vVBaMyJFD5bRY4KxU8ZfjsZoXUo8VSNZZOl4S",
-	"LLpVsEpOn4xI2MamIjHPTGEjxm8PcdUt3ryFfqPNFXCNL49dtW1oUupKbOpQD/UnnzxhnCjYJGHl0lLI",
-	"K0q5vU8+Ecd+fCIFcX82XxRBLQGSQY2epBdgcxFj2PY8lQ5yWeYex84KuJYcszJfnGepnapEXCzSRGIU",
-	"PbZVrjstDsytYIsLYUlfgJTKodXwhAXCs5evkIoN9TxXY5UobNMZTIHUurUguAsuLp+4yFYuncYWVSo7",
-	"MtS0oVxjjVe51HFyNVfShYCDYOasYTGu7t/8jTiB2ByNz4a6S0huxKY4Dz9Xwmr5Ro3G2Ovr1D31cFTt",
-	"mBTUgfBGrBgIvBAyu8INy9Oi8GBTJGaqazkusqWw6bWvjyQzkaQXeGqFaMcH/YNPu/373f7B6/5ng35/",
-	"0O/3yPL093FnIF4ZW1zk6uzL5+6WzFLQqBD+ykbCGmiG+Bq+kDAUli2xryaggHMIfGJRVfcjk8gE0qxQ",
-	"eQ9aOqbPMU0E4ugp9D1+zcFVfx9DgxnqnmOE0fELZLlGyIPep50jXBeRKTn3SF3xwf3Bg0eDT/txJ0jT",
-	"4DHjKfLh8wPMSNByhrVkBF8/2K5UY8x9sozEYb8v4u8WKl8OYBNj+g0flHEnPdju0qRmCWiGlmmKPLMN",
-	"pMaFwUYUUw2VVXIlwB8miN7bnjg1lAwB93c+Vzrpoprp4IUhdoWOOVAO2BEM9vbDVyqhVsmaQY4uZqFW",
-	"xGkS70GJlpjSDOCTRBbynNwKZm6x6KAQB398cF90xT7sPG/7OEuVLiLxt/JSniGFFakm1M6It7yYqpnb",
-	"clwSKOMHq4ZEMk2UHCCcDILuSN701IoYpYPY1+BhILuyVAkMCd4rHTvuZWuAIoBoGFqDudGycqJrWvMx",
-	"hgpP0qcxeFqJJQejCpxTBAcX6Al+1RFT3JVySLKIcapf4HrTbZ6kGmb27MmTJ92HDw4FmZpsjygCn8qx",
-	"zPOl+EJ+gcD5Gr9Z8ommWCzcosQosuCp69TiqClYAH+sRAc4ch2BSCmqpjKqquNir3Njig6OHkxdsbOA",
-	"SLyPqVYZzoglKkHyhLs1ghkO3RQLUY0N4tZAoLgVd/C2n3pUE24KFolL+kgQ77MMDxpaEsiWAes3Jgw2",
-	"jJXA3twpR3aZw2gdjBPS5MSMia37NSNZ4Fwd8em1wk7NghqixKL0QptcuckgqFJi8FuYZcRVnzJZqFxw",
-	"ARUrZJLwF7T1SNzNJJAsbORkAhsxz7KRs04hx3dVmsCcIkRa0o6B2BeFEZ8eiuOzk2fPRKaKQuU2YnJO",
-	"BLIHotQI/jOA/3TjiKYkc1ST2PhAn8L5wm/L4iolqQKbwlc6xeIK0DLnT0JrQQqlzBVvf+J4HTi57FAf",
-	"iyy1BZ9GqcVFbq78SaPUoXb82yevse4qUT8YsHvCHDvuYJ1S3FekvnN5ASsnYYe0oNqMywEsdk6ncsCK",
-	"TSza8K6w6Z/UEQmUOCD0kVb0QS7RhupGB68ZLOR4kVuTMwbvHAiCWVjsHsRRra6LEb9SSWskVpFbJJbw",
-	"dicKTHKYbIPMzrqkIXwZ3zyiWdCN4LydQs1sVO2u3Kwv1HVxQg87NOiptCMwxMXI2917v5P2BTzs9MTv",
-	"lZq7lfLngef6m0ovV9M0wxNYNiowm2OhoLQYriV+LbXABI842MgOXUH8PGh1gLZ4sI/i+nO5tAt15Ehp",
-	"O67sPYs2eIL5SqORzMJCGzE3WUZyJPSBN+7Y/ZxaYebyOwhcLUPA41fyQrkVO8LTU0z5eKVj5dDMiILb",
-	"hcIwbvwXadyUJccbiBXXDvt9PPd46OlY+xCSNHfVd9uSawGg1l4rYgen2UWb1AvXobxeCutRoDTYDkZk",
-	"ANvMVORvFt4PHNKXVUkEGitVqpASjjO4xcFNpn0F+caJQJS6yNLOSraZt5QTzfSUAJRGpQueDVE31N2G",
-	"mvQN2O1Y5GZRKLaC7KBoHnP+GeZqKzQ8DLUDvaZ+BjCQH+gP8QNu4Q8kXFjxA4smPwz1D91ut/J/8FGo",
-	"v4ofKqmePwiS2Yj4M8GOqmj2pfHcFR/sQCtUFaIk/YL7CrVj8YN4/uzFGQlnOZ+EHyr6XVsbkm1ICur4",
-	"ITkxknXD4OzYKGwh4mGXZ7AEF8SrGIUIlxqWbqwChrVaaJs+QORVRG5mUY3mV1X2xQ+gktpCTia4DfDQ",
-	"EgwhgZJGpZRVW1dEMQxkF7vNzEV7rjiRlZVqmY+nYB+7eRVuO2OyZogfqvnTMFwUmnH3YLALe0MXqA+Q",
-	"6olgBpUWoLOhxtKYuckUH2mnussx5oEMhBNoVV7K47BsHgyKz/BQp4X4h0VyodCQiqew8kFUCY0L1ti3",
-	"xIuQFkMNi5xeYlO6YlvxLbpLwIndaATtiVc0zzZp5AC8n8hCEodzy8EJcEBp3VJjwounCi45Oby4Q82l",
-	"EHxeXZqTpafMTRftTUnRnZ5f75KUZkj7cRmR6pDMA6PCXeCwEHVdKA0neqgbjFmDlfT5Tz4B6dZo9ckn",
-	"7EuboccxmZHD3s0b5SMYgkp8bj55H3OiyQXX+7Nekoa3nRknU4XCqvBD/XKu9PGrZ8LZBh14oEsblkyv",
-	"y5mDolCaDQfiD9/GQ90OVgL1TVOwhQSVXpWrQZM5zyFjYyhDagtY6mOXVhKJmczA/gFX0ukZ6Ga+NFC0",
-	"1Oe/H/b3j0hNSpMgjd4s4Dy6ZcIe6e37PRHvTZXMiumfQPzcg1O1pH/OVJGnY8uWhz0zV1rO095SzrJ4",
-	"qNGUpI3Lf4/dquEqdBwLfIIuVsfv0OGKu6jRsPPo8MFDMc/NeaZmoC/NyZOQGr3HT3/9DxZLlJEoN9Tx",
-	"K3ruPH6ppqmm4EeJRIw92JjNSmRGnUwU4gyQZoKysiSFEwwZ9BQuEozo00f9ffoNU5rw+DPiOVk9INsB",
-	"xbo9z+H2DvaqFdVEOx62hi2/pSii4PedI+r95OxrMVZZhvd3L0u1snssVuD/KP5rDGWS+RHsiY6xwf0u",
-	"2CUSMZ8uLZZGgBZQUoehTZVMFC4zPt7vuBwN7ujhnhOyYx5OKSHCeKhrl2y/Ku645kgaImUjEvFcFtNB",
-	"mpDCFdMgBs8SNZubQunxsvt7tUR1goJyWDefpZZz+FA2DJceGyL7aWpdvExOupxlyX2Pj9oLdz2EXepC",
-	"XkfiKkef/XLOCVqsDAR5Q3A5D/v9Izo8Dl4CXMVZ1uXWzkFZy5V8Y4UkSA326zuRue0wkAsV+uWdeDnU",
-	"cOciAoyga0tvgNCbK5Q203KNxBu1RPvD4cEB0PIH/T5Zo4FgD/XQ18akqzRseb4Ts1IzShOGW6Yg2AsY",
-	"SGFC60Bm4Ah/wRJU6kxJpY0JGwrMgUT0nYWcDBZO6oz/rsvmkO4zSF6RIlw+o9mU6YLK0diAJPsN5pQx",
-	"mTiVBQdcW2YvzAzQPHq+wNrGZuLGZkt0a8BYgHGiK1jIQjzog5WHjJ5HJZYIxm6QwdBRv5rUeaEKKx6g",
-	"+dUieEun52YttQXZoTDB8rAlIaC0kbCL8VhRdXTcn4i1bSp64yAnvluYQjq2yJeVzSyu1tCT109FkstJ",
-	"MdT4P91UFZMuuHTkPO3mslC4WF362nb7n4o2hUeV4Rgsnaf6AvTYGJb4ORkGmOJxmHQxVZaAY/BGMA+y",
-	"3jB0lSYqW6K40RmEDXW5OWR4tEdQ7i39E+j8wWunaiZTTSHKSAqHmhfRopc6IiUUzsrYLHShkvr3VkE3",
-	"tKdWLHSRZhyyQycjtWxjB3cMmwLK71+hPwmpMiGJwFP8pzq6+g0947adQtcb6leSfVT4Ov6LjwFeT66P",
-	"EZ+qIl92sSpzjHIERSkm/qbYoXYqJq007xldUndi/NvOyEYSA82Svuf0d+lIX+XidZBSkeUURSUwEDmT",
-	"S08c+yWvAk2kgegAvfL64wrifcDCY+K1Wwa8uXOVA9OGcQ/EuZqmOhFacBiAFZJPDrovCPRH861KC3fh",
-	"yTIINP9CaQ4MGptEuRtHVn+h9GJWkppahAxn8mnGHsaeyD4swSOpA9uhaDtp2cAFgp4uFIn/LNZ0eRwm",
-	"7wDh9X9hSFdgOMV20oLNpWIm55xOmC285MtCXxq4PWBEPvHeR23YMOrwP/2LiF1cD/DT/b3r8ql7AnEO",
-	"f/lP/zLU+PCAni5XW/iP/Ev51D3540Hw7ABd0Rw/4b8/iI98/NThPONfnppF/gpzOx+Uz9JL9ep5fFRa",
-	"RylHN97vHlh+B5Jr9w/QuLnfvV95eh+fHlTfPaB3T7uHNh5q//j0EB8fdvfDlw/3qeH+ddhu/zo+Ijpv",
-	"a6g+/A6Xy1xxzHMbZfVMeKOmvNPyh+U04yMfxjFXrOfGf/4v3NqLRVak8wwqBsR//pEfPk4v00TFrHlc",
-	"pTkfIRSOyZ+Jt5euAZXYwLsDJbxZXwPqXfEYwO2wzuxpYXeoTHgk4lfe9EFPhppn6V6gv55cKl2cQMPw",
-	"DKtqw00FR2jdBTFFfz4c+KEmP5jzzZTC0VhqoWYUKkq6B+pgFQphr9ICpPRLhXdNzYBpV9wK+Bp4FuiS",
-	"YRMItyO9Bfs8l3o89d5mzLjJzMUQk1FyOXYFl5HD7vcOen0qDxUQH+J2HVQP4lcvz9gMv9B2b2wvgXuQ",
-	"j+10oU/spVsREOTRkFAzL5Lj0UUWtuNCXRfUDsggUd1Naj1QfadX6z0uXTIUnRS0JS3769H2u4usUhLV",
-	"Ojsn8b2Jezcx5WZWi9b3LQUXCngZtkIRsNXhMAixwk1FwExnOO3GG4FXYRCeezrgPSwFEpNjwfmYVm6H",
-	"iMOayNVvKveG1qq8Oj0cAip+qzeKBCXmFDQFY0k+Rrck7mQktLlyijrHDgxELM/NpRpJu5zNC0OEC6DS",
-	"rsJHOJjUjsyisGmiRoSxxHvk3OQjV9gzJrgLks4XhbP7O1chnsRv0lx1wUoii/QccESrzJpEBOTRpGcx",
-	"Siy0YyZMvKxoowKFCvgKv+8EJzfk+VPZwO9BU0OVlggdVxtMUEiBPi9MIea5oqhA/ES0f2vcUF23jAof",
-	"ukWtUlZodQWNjA0XSMMGnK77FOm7J+U4EyDxLsAHfOzxE1BRY5oSiEy+/dQKZ1y639sH4sPxzPd7/d79",
-	"Tk98AdIrkH5cyAH5qcFXREUAHWeI6dc/vI7EEJMxhq1vITK8fNVjqlNwS3g0nQ+PSpwjfQce9kw/NflY",
-	"9cAZNQpNzTH6AmOj1cvJQPzhewgEfBuJ72kMrv+33/o1QN39jNVsIDXICfFYZqi3WpYrtWOShBGapW/I",
-	"eAHLASs7E7Gb0AAdbjHdDzjVIkZUwxiXj75HKbULX4CAZ81MBbWOfNJZjLq9YFPOgqKmVDYR7ZVXB6IP",
-	"Ph1pK1M66B/0u/sHcDSJtvfEF4b5CmHFKAGMHLc/Jl3bW6IC9dunHxSmegyPfLVCpNo4ZzBQTYm5xOoa",
-	"iVLMMQgYSrQku3cbrSl8zQbkAhpD+gO7qJ3VFIqo/vbJa2jac7fv0+RtTG+s6MTOExzIP0feas3U00nW",
-	"NHiUuo68cf0G/wIF+IsGyz8NaLVzuc76Ds2s+CK4kcqkaH9qfva97+kfI1iMAeqiPEyJ5nkcIBy0q15V",
-	"QAjM63vfl3+83QucTXvnEK8RD4SFNZKZj4DAc6S5N9z0iNQYF1cIW1L1QWH3JOB0y+gbW6p+ZS32SpwP",
-	"oGqlVFSBOYVb8xGaKuAFvKRQ4S3494h2Gx4xG5Q6ici87ni0hwigvA1EzIzpL5XE9cOp1ZWYKYwJ6rDP",
-	"mqWoe1acew/FxBncbrCwCTawIZnBeHKKuyuu0rHqkHboJDVkHhTMAXZVcLeTSfRwj3twIYW2xiHmuZml",
-	"FuTXAAldinndSJwo4DYJzIYocMVM7Ds5cg6le7ZmAXLjTXOSESmMwomJgJTrou1pBA4zH3TU1EqKO9er",
-	"SWlITTK3GDhr99VkonLiijNjHUAqyVZovheEKmDBEslIsBJxkAkECxKiDIYC+3AIIlR8SpjoLtHuBVee",
-	"g1dzaCJXFkX8dkJZQhDyZ6NQdUYnZYrXO4Y91/dAbwCVAUwcTtfB4Q8J8RYs722p2WJMUeCYLX8hL91o",
-	"iLLPZW4RGwsnQGCvou0WKDgpFIws8T1Y3pOzr8k4jRZTOFpIqTGUQheOc6AlwYX9EFH24VRSu1MZmOw5",
-	"8BgbTdQ4nWG69WwmnScBWGW2JEEXtZ1m/QZFDHfjCP2dFK5EzRVGaBjNzqylKjqDJorI9fYwhiiIIMGw",
-	"r5jsRVc+SgiZpdFlKCx8luDV7Il6lBOrKDaIrMHDdgcBG3jn8LChcMvxGKGQ6YJzd44WBpkNt4oFToyN",
-	"WcyBi+tUsyDr4zDPl+UaUQynC3T1rLDm1t/gBXfhvOEX9yjCUrSZcXB8MWlJnaDvkgWw3ADdizQhYQxZ",
-	"iCuxT7JCEMTjgl1FG2VGz66VRl7ksWJcpCwvAiQc9LJ0rDTrQsdzIOrdg14/cmFfwB5sygHuz5+dPPni",
-	"7AllNPCHkLFAQNat8vNW1FrkGWc32MHe3tXVVU/izz2TX+zxt3aPW8RvsL5vkalq0gPhtFGZ1tZ+j19k",
-	"a2Br0EJBnRDXppgf4tyk8O8L1QSNxsf6ACBqIXqMLhBZSsmwk16qnvhCKRQlStx/f8qfJa1B67eq+B13",
-	"VQMgOOj3g7Lt8M/QZfoPnEdDNPGm3B3qgjJEavPAYcJqPOj31zXjx7X3jF1SyCsqyTWtwR++xeTumcyX",
-	"kHkNjFkhvFYhLzDD0c/cUsVJ53Reu8ivcoxrVgtLVS7UtTu9gvID6ut7RK8okRbk/zEahAWtiiuTvyF3",
-	"h7faFfnCMo73yp684JHduCdon5lnMq3tRj2BaWXhuYf3sfTBss38PNZuQujqX7sToOE6rdbLSYGeA0LC",
-	"+SIFSR/z57Y49tzcbsfeDXKHhQ6Hfr+374cfif94/OL5+1j/16E0uWnpKf5iSxqjdIX8esbqcoJoSTDU",
-	"ZZHnOMEH/ftDXaJO1HdFxGD4j9k9KinHIg7Ime8rxawvZFaYSCEcYNWAA5xkzkchcXm7rg4GDRJH0q44",
-	"0Dqlb69s2aLwbdB4TIaGwMQ81NoU6VhZTuQGMznqHuiLioPYJBiUd1JFIp1A9HzEieokcGfyYs3dP6Vd",
-	"eY/k+BRzSJW1TecVuxeFofW89fmEr+7f/NUZLe1XWl7KFK0wG492OfINx/pyfw/19bUH+5NPMHFy8Mkn",
-	"Kw4Xk7tYLxR5j6EdEKttBLqksgXFkEdCFqTB+AB4SJ0FWxBF0sWCYLYhxAP9dC7nLUmTATboKkGzjMI/",
-	"o2TFyUd0kCkQVwfvQKIhHjxfmp+NJ/wkTVzvrO3D06Fuk3URJxz7a5smnTAFDuRTH8GBuVwG1EWt8qbT",
-	"eobBnbhIISa9xTogwJJaqFe6QjuDFs2gFW15UDnn923U3FqwApUmg+TeTw8bknk3tpYm69pqKrGxrjE8",
-	"FfWGGnOs9xtyrL99j5cfd+u5Wcur4PThrT/c5tZ/LhOX842f7N/8yVdacty5SuijLejEU5Ofp0miMAP8",
-	"8ODRzV+8NuaF1Esenf2Z6JinXHRV6tVqgJMENx9MrHgKA/JGkciQWb4Sx+mRoh39QryiWapLQkg/b0UJ",
-	"q1njN1FG8knXiCLWxVYcKRxog5gCxoGRHESmxflyqCEVMvixJ55yws7YzM5TzQg7x188PhIxSHYoLKSa",
-	"TehE9QoTD7U3q0dUC8vo6gh6AtJRLBckKCNzxz5ZGGJ+FIS9UU5VywVNBQtG5qpAuOoMEGdLNKQtDXU1",
-	"kQh8Nu7fjTlKR86u7zN1hrqaDkSg8DjnStPgjeiV2TiY14ldoOg11NxBmUKzQsdhyrSh25HxSlGS7chO",
-	"CHW3jmiW5U3urk0yddxpkx57fbsmKwj669osYdy3a9Qj2UOD1Tv9ROZZqmxRvQBReW0Qsb5hDHDBKgPY",
-	"Bspxtf/nsmjoXV3f0Hth7qDvVy4LcV0vq3zZlzd50A+AUA5u5NFR8waVt2evTIBrvVeOjgcMrnATS4fk",
-	"b7Sr+tJ+H5n7nTP3EwLwTi3YGAPezdx3He8OOa7DcL6JlaML9T3wc4wmpdjsCbibn5HnxaOPGD1WQXat",
-	"0hcpwwokBCNHT0Zs54wjB/NA2Yq5ci2t0XpxCVe5zw1XjKIKHn+A+7VOXKaSjb/wK9U/vPmLL0zxFOHA",
-	"/0rv4DFtBR3RtLCE4cOhg3AWfUm09307b219WIkQrd1RlxYBGoLzxjOUV5lA6hR7zCDkUnYonnP8Z6h9",
-	"pDaEN9l0M9fo+L+E63mTQovLZD9e0V/AFQ2OHgYUjJnouxvJl2tbXbd2QzfcyDLFGaYxN/adrIJUpsAK",
-	"ifEl+C7lBRUeczQIHnHVLDz2q8nTC0Q3d+kRLrPAF/O0WCOdki1FihlNsWtmZCaQSgff+IY8m3VFCjAc",
-	"qgAPf6qdXNITp9x6bRi4OAmB0C79X6BRYsiJg83i8I+2CxzDtoYaUYkx5MFo5c3hBYSgcuogorWjNsDO",
-	"MzQTdJge+eXhXLt4TraAkQ/Dog45ustMgnAWVhiHGoNDpQ+j8hFNkc9Zc7MtoSDQ3ukiVDFpwi7mKrcK",
-	"J4+mMDc08OLaejMVCAJe4wH4KbiCUOV3CqrG3kzmcrzdOFhREnKC8T3FUJNrQqJ1ARE3tXK1FHvipStU",
-	"yo4WJvx0o6Yy1RgLf87jB6SPw/6jiNIl+GiPUjvirzmp8RRzKdqHBwccFnbO6TQs4ZXprp7BQntHHmpu",
-	"qGn4z05+J17s9wFl+uCgE7FJI0CYA9Q4rm8CbIkjQjBfccSnKh7QGOjEIeYS8XB86o+Y4EwuBsbmjy0m",
-	"msZ8ju3Ig1ONtLqC5O9CZEpaZxzHbxjbie+BzODxktoBiHD3y8hFasQD7wA4AJxNMyn9SDIv7zEGMLhm",
-	"4RZkcIGqk3BDwHwoKxjW0zXV4VGkmoDK7QiSGcNpVLANgxdjWj6CnuNdgnCTyG1Rx2U28AioJzCfjRA3",
-	"dKR0YkdaqWREgU3xgCcDw62QAVgA+NBF6QFoHMeJwPCm6cUU/qb91DJHFwf8gh3BXPBr6PCI8zyEQymh",
-	"sfAIIiGFVSBiFFyCxWXMX02XFE5FMb8InhTzV2VADy5yp0nSIaL+xDGKnWWdIPv49wrK/uwoHSGL/twk",
-	"yy0EIw56I15GJZX/8L0rOdF6fh95I32mWoMD6oCgT1s+qE8cwLI9v496Xqq5zCRhvovLlPkT0JRcjoEX",
-	"WTUvFrMe1RXfRjLzi+nlqSqSKpeQr0mG+x9GcQuLTHGGCLT33IzX1CR5JYupu+ju40jENVEDyxBWpxht",
-	"Chf470wq7W8hlZ4YPcm4DOfh/hZjeiWXmZHJa2Oey/xC0XcPtlkAu5hTZPALlaTy9ZKq2x8eHGzzMUdT",
-	"gSD7RBfgjf4rlbufEAcKiwxoxsKPhHRyrDvTgTz+3fjd/E4kfM8zU/Tm+mIrjfgWViuEtswMhsLG2Jm9",
-	"vIh5Zq+++K1IZ/JCbdJuX2WmePXFb9+nfotj2ONVaDBzn6daku1wm4AinOVHjfZnv1lwcAJVNhJ0it67",
-	"hcmd8vdwpc5KMDUvuXrQ+ZnM3yBkAoNk+8LUkcsCmKQJpYSdY+4GhbK72udiLrXKBGYTkoqF18IniEqK",
-	"s8QI2qEmQDzXvkf3DtCtoHX2nN10vc++/gDX215e/Pr6VhGCHy/0L/RCn339YS50mcG1nYVqo6H42QpM",
-	"PcyJEggg/KgEvg3w8XnCqJ1SpKIsFVpC06LbXN5y4TK3hCxEXD6PS4UTFUKnnkL2aR0KqCfKjGhGGKgj",
-	"3ku9dLDwnIdLQOZFhClCDL0GDYKTHRaDicJRpYjuUDMeLeiaRJpcnhllG2EuDCXAZohyScnNlYJDKhlq",
-	"UlpNToRMSHIt9ETogiDYE6w2VNYR4H4QdmmoD/uP1iuiwaK8I926pWJZ7mZr0O89ehC1+NDgCFIY6Tfd",
-	"fv/woBqp+od+r3/wIIL/Hj78Fj30nAqI5UTK7+6vfrd///63b7/dWr0M8+130C/vzvMQDoC6WOeBZ8Pk",
-	"3EOYRhTFzNjeeaLyXuujKvhRFXzvkQphniZGGbvSJWHIYUB7tmR1G1hbBUP2Ltwvp6C42sDlySgLzivA",
-	"YQxeaCWQTB/bALF5pT+IsOHWO20YPIFlXar1yWZNsKhrTTASF6lWESdxzuYyV67+FOGfebMRHMGBiCnn",
-	"dAzpz4ijDD+WVbddeivbRKHtEva+/ezs5d6zJydi/2H/4MFQ//S/P+zt7/cOyJ8ikjydFMRuOAPTusBC",
-	"9lG4sisBLi1CbZEQnpSrWS6ZaJcgITG/B6iYZ/AGGlanVAxwhZmd+s1Xv+AIj9PKEV0X6YEbm1owGX4U",
-	"1H9uQhYcLCes08klQZAogLzyVOCOI6o9aTN50psnk/cQ7fHao7lSN4Fawqatx08ZFhuVFl0rcTBwcjdb",
-	"+5zFutSfI5+NGAW2QUxyRqLg9P+IENqwnbIKoCeZZeXQe8KODWGKf7egClIOsIsoEn5jC1mktkjHEeMd",
-	"QrvWLBD1HJ+QgRJyJtHFjPL2Osz3yCsz2Lh3qmpfqt/J/S41zGOfi7aWMxVxnjYlZzuXVSbP71nxJ6NV",
-	"BOsogc6z3aNSJMCaSXGFKeI6qdNqep0p1FCf/e64C1XqWI0CW4oriMMI4959j57Uiosfi+JsMnKc4iF5",
-	"9fjphyKxfOrf2ZbJl+gjTf3ZaerrCsR+WGTvXbNSdpEW8ZM7EBNfmEs0KQa8oR5bIgojAAk8N5eKCXCu",
-	"yBEaEwmkiVuHt8IklJypnq4i2H+q68ShJ46xaaRhbhwEDsz2CUx9hXCRmJ3dsnRZQyiGtyQYAH0AZNXA",
-	"CoKwCyIz+kLlqzPDZI9HZTkCeDBJEeG/7RD5sXkq3FkWO8sN2HNKGpmrYpHrciELQzE76qoDEUX0YxB+",
-	"iBBG2lwRhbbMylLLpUcIeIzRiV3pLzdNqQXmLeZGp+NyDBDyAivI7Iwgaf2vNhZWYfIR8EAi8e5Nl7Xs",
-	"M3ixAgE10HUHt0uZmF03eciVCCGp6f2wSh2JzpkSw5bL4uRvh62BsIvx1FU4QM7ABwxG6I7XUOMmYF1E",
-	"SgC7Z0PG5DGfwrtRTrnTLGvDat5OzP6ZohfclWoNWrxKrUqoArkNiJvXS6ZzHS8ULKrlMSHEaIcwBVq3",
-	"n8mGtDZGgUalko92oY92oQ8Qmku3ryRR7x6du4HJl4TsvUXJB7TUcTlNWPOFMZ0yiHEmdTpRtuAaWCj+",
-	"MKJnNNSYDg/aQVUtwEeoGwhWDY5IY5kqLGPjigIRcxhqiv6ccqo/6wHExbG8Jr7WE58DvVO2UvenLCY8",
-	"1KvcmaHjgqo45S/G1cJhUxfH1WF6qO9BtKs4ArF/ncvccSusSnGo5VDzDuDn+Evc2ZhYelbu+C/SAuTH",
-	"ty6P7nVlcT9qK7+AjPrgqDclE9yNihK9sx5y3CzUDkLYD4CRtALryuOtc5XlSaoRJe55IBPHrj+no5SV",
-	"x0JZ8shpOBIqKcnMGieQ2pLahxI8VH0g8dOL+e7wq1z48HVvFQEihbiwrndo9jvJ4rTKudqOk/VXftEl",
-	"YSOSM1vYwpXTDdaINCdCFIc9UYk3YXPWOwnmJcGjaHbCMelyK35Ox1y1xy11BH5cg6KkyYc6SZGrJ0KO",
-	"MWaYS1gdleW1QG/D0wdfke5Hr+Kuf0NKygJr7VboKquZRDVpwrSQIubTn56nWVoAtHmFpFO4ewNRF3Wa",
-	"7lBMbTHU8Lnl/IwGUl5qJ56ky3CPXANHQqsUmZtDfwy5FHneYVGD1vlKDnWprha+O9TXpoinzN8wli5V",
-	"1Sb1tRFzJr3Qf/06Dl51eNJzt6YVtfgc+BdlhnOk89katMYmz9W46E5NblX3XBaFypfdh6HKhCN2dABq",
-	"Eo3Hal5IPVZinKeI8ShmqthBO/Jk9mcK4vb938iVP2pKHzWlDyN2vLu0sUE5qmC1vocAT9KPwl7KlOKG",
-	"eDDE8iniJlIMsvLXldH+ImX7cIibxPvKwn+U8H/+q/Z1c5HnRml/Q6rCllGZ20j6QX2njfdMPAtKWEOz",
-	"1WLjwWTYJoCo/VRAEQTXsKPOka/gDNr70ruDtQLJ0S4YcWsqsTJ8dVCc3OmrALuO0Zpahnqw3AgCCCxv",
-	"7DcpjoQ2Q+1i+DrVEJe0cEXtKzVJBx6fc6j3+/2ffpzAKdzTZoauTGjiV48F/tLGn8Rf/vlfBP/cce8h",
-	"BglIP4pwyof6h189/kH85X/5v9dSHksZpxcu8qgwmcrh8Wg+LrByiLFY4Y4iU3/614O++JVLqxVfnYkn",
-	"r47F2Tfdzw4/FS+wdfFZv99/HHrCqvt4tJrdSsPCElM5GnNcEjKaTeR4nKskLcoi7S4b1mE0HJdlL3Fp",
-	"tRG58e595wAC3YNcK8eN6cbVRGMvpVcKZPi846GWBRxe8joDsRf1/ONK4ybnjKHAs4Yox1egjB3V0pZZ",
-	"IbBcgWgl2Zl4Tk8c6yAsqyn1ukKeXUQVDSEt6ANlqSTykvI8Ub+kzGCaMZj+SJsNG4uGGl6SDusT98Wl",
-	"t+LgXeUVmVPN5CKX2lImsItIC6HhH7GjSHg/EbToi9aSU47zLVlF4ns70qYYud+wLgzPsExNR5+RFqtL",
-	"VTYSJneXTdSikvldQJibpJAFDh4urAZU2ewgWMwdoyCVH/qs3Dnc1VFwYbC6syziDTm3IZn/a1HqAnCz",
-	"1qB10D/4tNu/3+0fvN7vD/rw//8eOE1IFTH8+U2qSZHTRaoXoOtFPm335OTr7gzRR2th0Yf9R9sHRYeL",
-	"+TNpbOEQaIeTbUQuRyWFWRRAET+qcx/VuQ8SR4h21uboMtF+dvL13snJ150tRU0vtt2c/rO2mhN9t8ck",
-	"/D1lzQaBJHjTCWsGyHwtv86VQ5IFFwFh+WmotbnqDIScGeZ0LuTBc/iCcmSQgeC3vmQtz22osV7TFsyN",
-	"BE942XFHLsiL+LOlibFiXsSHKEESYQnAwOSVTAvvXcM4ERTQWHyzKkSioYmNUj3CUiQxSGkaLd1lqEc5",
-	"Cets9SZLVC6wqPE3LhCl0j5AixAXlhdqNDWLnEpehZJearkdLuMjC7cTIJlrfMHX6xKH/UNX2AcjfHKF",
-	"od1UQ8YVT9oURcgV+nZnw/7QtG5Gd10Pj7ALNOsqN5kZimo9fXoi7t+//+gI45Bwc+W5VbpYhwoqi92x",
-	"R9874qDbik3Ag+XWfzRX/CLCJ6u7AldV8rG8U1vFTSzkbtNJj21QhHBN1mockSIXGg/LdZhQcfMV5hK7",
-	"KnUr7AWuLpbrHWpf02tLjglKjzVMK8XzZy/OQDlVxD4KALNxw0tsY0LqF8a94MaP7qjDofYx7+RwWa/T",
-	"lPTwXRI5Q6r6TtoKk95BS6dFLpEIrygu+6Xi0pzp+aAhY/OzXRI2mxblY+rmR03lo6ayDXv5ciFB/llu",
-	"oLN3msO5fbXZO2AxuxW5pZrY9Qq3iEMd1LdlEEHMnEGrtnsRo+O/o+VMm7xeQx1yriatiHKUmjUjYF2d",
-	"iEL2iqkrQsWRMzC+ciZIVnCADVTFsaahDngTZczQa6nltlXCmWImpyCLApAGB6KsZjvUpfmvkbc5kyVM",
-	"DAcEpj1XRNbuDRf9/v2xxv9RQQFbVst4kSvL2hPHDJG4H/WhXKbL0yIcxN145+d4zn5m/kl9NjHTXRlm",
-	"vZV0pZU1qAkNTfYPD6DNbzex9Hdi0bj2Pzuf5lFsZta1m+Vu6Lob9pFvf+TbH45vr/CrgO+kuTOfvRde",
-	"zgV/t7MlVnzcu1sWM6r/EsJeh0lZGFGi5Uytiyh5wWN9j1SFutgUC8IL9rFWyt1nmmRZWX+6dlbCLH1+",
-	"ZztT+x2GeIR2D/Ryw1kVY4Z896d6vydeGVtQRTOCqIZ/48tcm3451CWmRwlOUL8frmkyZ18Hv7QP+vuA",
-	"/6ywolPuf8B422UU+KnHHPZZJqvWAEyGmhFMYGzl0F0V8mL13t6zLnOd6NRQu4Ey3Ad277JDwaN8gAUw",
-	"X09zZUnWzdSkEJi+OhnqIEwjFoV8o4I6MveshxEP6666UyXs1FzhFLIMQUggWoA4O2PT50osdPrdgtYe",
-	"BExnaYcY8A2+5xeuPNi7eZ3vTLhkg3QpWS50WrQGrdnF3nPspnpwv6D3gKR+9bWYT01hZgplnUl6qVyK",
-	"ZKpFsqAxYGEsRHPAYlhwtFpRrdfu4rIVtTzQA5Qs37veXoSkJf2Z5EXezwaq/sxB7jg/V+28H/lzjXWP",
-	"yG+N9P8ufePrx0fEhk+tyd8Nn9qx2jhg/nvfwzb/9wZQ/VHi/QWCjOHl8TQ4KiPGQqHQaLUDu28WaPlM",
-	"/xxyLXuYKSCMqmSEZVri9ZX9GxkOuiUhQiwgx3L2vrylx8LO1RjiHQL6FxDFLXymAVx4Q5Hjg/3Dh4ef",
-	"3f/08OHPWOp4PbEtRfyPjtOfn1681G433rP8z8SDczW2IRoreROc4xcJnyDokspFm9pFaZTKMSUqU4VK",
-	"1qZGv6KBvE/7mcrt5qwHGvRHRffOTzUsOq/u9nlCt9ZUXZIslWxhZQizDCOI+F1kWQXbQLQRoyCACwAd",
-	"qwNVokymOEaqTENuM6KehF/EcX5h9EGaiKm0UwFANhs0rFeu5P/Pp2HB7EfMto4zdS1Oy5zLxkTM7XIu",
-	"TaYCXAyVt3aALsZF+Znic3lH1tADl8Tc+ij4fxT8d2Xkc6XR6UhnaHeyV2HQe9/j5Xy7x6x2OzdzTWpn",
-	"ujiWOkBLA7InUsxkgX/6KoFpTvgCZFFi+K8eNcRzKo1uHDbkUF7QJtdEBh/T6NfRwQbBn2jSbSX/5/j1",
-	"+5Ws//sgIf8DiNZ8+DzK3F1dyYUG1Iudb+RJpmRuGWkDoxEwC6yCqaFK+JPGUOWvsOuP1+njdfrw14nO",
-	"3rvfJtZX31t2P5qv2c5WlsUt3UWUzujrplKSoy1koSKshEs1s5FFaiUKU8iMQiZEO7bqOwj8qZYWfyUv",
-	"lOVcWkpfyFJbiLHR0BI6s6xSYohakR22HFxqMG2yXadWJGaMESjg+nJRSzBra/IYP5oolbhywT6F+Vxd",
-	"pIjGDzhq6J7C96KhjsGrNnINpFbI7ApyJKwqRBvzzoSazYslomYz9CeHglmTCwtDiYYa45UhXXJmchW7",
-	"NAsCfINHXGhcXKlcuRKyYmxmM3S89Yb6Ka4ODK06Iqt8tQBswnvljB6rgWtW5mqo9WJ2juFevHy0Jyy5",
-	"lEmplvvFOGhJ84I9zYeaE6ql5r5c4owfKJoAczpLGD6Hr6VWgK2lUNp1HXRHjYzlghJtBpjxjluAgKso",
-	"ZnHsF2a29/B4ohmWn/dkAnmxMf3Ama90wn1aa8+ltEfrs7X4zfDXuIN4To1ZRf4D/1M4CBf7V9aoLotH",
-	"w9DhuowYstu/HCYzGa0s3BSOfd8Gbbdd4tr23PvxoJYQhLn7qfaQWmGKM7SIY8Ub6+tbrzVBneJ3T/CM",
-	"7aykw60/wVPcWrUxw4/Cpn9S6yzICPVeMR+zE7g12O/3o9KYDCWrfkYzMi3RU9WcxophZ5KoKV3Vj7a0",
-	"u/coEcNCwm8mNSCDCkQpPbmb9Bp+e+97+scoTd6+p2xMx6GZM3dxokR5KcKBXEs8ijgq8Ut9JmWFi3Ns",
-	"BuaoiGMt0qREk6CuKlG/Q03gBGUPa7xXdBVW6UQTqj+8ec9C1+1g6M5DjTNElsoPnZjS8eSiKsX7JjZK",
-	"8j51L9XFp4etgIg86vcf7j96dPDg8OFh/9Gj/Z+doFDm8fqqCPDOR5n/l+GdcrCEhG5PyPYQ5v/+SM9i",
-	"68y90q29WsrV5BxYBmJYO6iZ4sri+OoplGCNhbWMdnklc4WSE4Va1Upk3fO0p1Jbpo6PMhBSHPT3CS3U",
-	"VixngdCJuDcLh/FJUi4Z4S5llibifFE4+B4a2VhqRgjluDaTEygOSPQc+BRBmoEPIrNYkyaL0FU3AbkS",
-	"X7IdyvwDgGZyckTOicLGiLBuQ7WM4wAqDA11IgsJjZDPr5jm5kpDgvkSYKBo/KmeLwrRPry+7lAvYdGs",
-	"oT5dZEDj1dIwzDRRCgpeGwSLTtioGG2I+4VKliKkJbdPTGARioej4WBJ+GeEOYWJA2yRykAGRZOMwaK9",
-	"7VwRUVP+hIgLI1JdmBAUig5LcWVchFliYD7CTmHL5FBXkE+OHL9Ok0qoXhChj6vwN3/zNyJw+wz1mQL+",
-	"EDzq/l4tsWjHDOIHc1XkqYLdmKie+L1aUut45RyawVATYCxqKJYUHjXD4UPhN0KgLQSwzkIcHApMwq9k",
-	"2dzDwEMwG6P/jApYMIT3gL4Xf3v28gtY8ChYfKAVc5mXxZT02HiIPdG2BgIdCyXsXI4Vw8DCsWedjld0",
-	"hg6nzhF1NNQnZ19XOkKRWpTc2AOVQ+2rc5NAiYlCgR2tK87kTIk3ahlRyfRgUhGXjeIpw72co+eazt4n",
-	"n7gyREMt/IX65BOqkVEscl3O66C/X1IK7AdHgZzexa7FoE4Leq2yvadqnskldpsvVAwheQzfiytapkFV",
-	"p+OibItwTgPAM6q8CAueqaBKVpBHRQQAYu8zCHukeXPXCBUBAyY4KXepivKMICA8FTDB1dcix5kQ+pfJ",
-	"xYUqENAWWmnTvE9VkS+7x5NC5XFHpGCKEYkhwgDzSO0UxgMt4yyOy87gLDNxApICHTwAyuI/h/BblA7f",
-	"qKW/WnB02nGhrou9sb2MO0P9W6UVlrQV4yxVurCkueObcOF9Th7wGPxItL1IONSsKJ8u9Am05yN35Rtl",
-	"0Sssyt5wZRI1zhg3ztLJHerw6Frh+OYRWYJ8ZwwDRiHEaEEJWrZDTezxXCViqnIV1U6gmkzUGA65yd1M",
-	"vTWDgfOoYpDUyyDRzwp1PTc5rkdPEKDzCcl/XfDwDUQ5CF99cqgpWJMKP1rGdnNGqpXrGhNdBy2h7BiK",
-	"QsYBwlQs2m5hiPLGrm4bbkiB2n7niKs2x3XBNGbotaBbZCPnikO8RPsQQredMoIXNrXiq9dPu58BHHRG",
-	"rABJSZfIExYvS61ILzRcyA6Bbhzuf9Yf6jZPHbAKz2HOxgWei3jYio/E86dwZE9Onz8VWaqVUDqB0tDP",
-	"U41Qf8byBR3q8VTmclyoHPqK/yZ29aFpe2Ap4IF9k87ncGjOM6nfYJs2/IE9eHTpDRrssF+289GG9cSJ",
-	"yRYzbX2CCoozcCRwygNYnh/EGF8SP/ijKn4o7U+5uRI/OG6Hfwz1D91ut/J/0EoMQGCx+EEslRU/iNi1",
-	"EOMf+H0s6E2PkOBe5gci9RF+ax7i58igy4/xz+qnZPukt6s4jv4rh9xY+TkSf/lf/h+iX2vBcYfyY6Mr",
-	"2bMsV2z4Yaj9IqDGCP2XvZTCRG2mLmNy5QP3g5jIMdY6pCxW0RdteoVE0/0ONASkliR+Gs1c5bCTUOqK",
-	"JSPnHGaXVW6ubJXeAJEvtw3vK+9CKIETscSL6DiGkkW1kep2dFzEKfxe7yFYrzb92xKTLbup9RCsGFTy",
-	"MlcseaRUE5fIMc8ZWsJfkRVRNVS8B2G/aUm/fV1DvAUoMtGL+P0XLN8vrBJxDyg41labyUzMDYojUgtH",
-	"15AIa6RS8X7vgerejzsESiqAri0s6mJWAXUrTG6PRPyF/AII6jM9icvCLekbFXr1UZdDm7ooVyQnZHuJ",
-	"ng8Q6pjzjlWWEdv1LBaI7FIUhoyv5uqeFXCnPWXFk0Wfa1djGfbPJ2IkbgmJ1EgxSwk0068h/R6B2Cdw",
-	"HVkvKcUdUpRAFmSSyyBRjqZx5DUQO2iDox/wpcP+o09JNgwrnVHFBNwElYt4D76sJ3/TXzQ4ehTT8Wh+",
-	"P+74M4Nr7Ap8WpKaaR3bgOoKZt5S7YCL5wkrkS0wpAuPwgGfPOj36TcbCd+E02hdoU0QZ5CnUVaSpKx0",
-	"aOqg34fUdIEaHF5kn5veFWekg6ECx34Gxdq0bxGlHDhIQhvdJWpCqRNHpH0IkcklSobnhoz3rl7Z+TKs",
-	"THfPYqOJAiUhD1K7oInzHIEM0F2HhjuuDCikX/Jerxe7fSPfDYW/DYY6juOh/huWZajjgOq6nCGVd/dF",
-	"m1nrKgvtDDUc78hpkaRgV/mBI/2RpwmRozBD7bYy4iSj6Pl+1O89iCAnvn8QRRvf6D/6rPmNg2i/14c3",
-	"DvoPmt+4Hx3QG4f7+/gGnR73e4QfP+hHmF1/sOaF/fv36YX70QEv6Jpox9PFnUCYVs09cDLwpHkxEFkG",
-	"Q9myZQBTatd4Wnxw9V3kDmweTXC0Sg69blzly+99bB6BD81MsoQpLOHi1o0yxHrdGSZuwxC95A6jM8B8",
-	"akgj6wbkpP+tF+2l++Dt+wG97X9WYkcFezpohdSlFblzWMs09NNhjEBbYHxtiIbRhLlRgmIcrIJiHCDd",
-	"ODh82AC2QZ+vAdi4v9rW/v37CK/hhbe1Q6oB/gL18vC+z/cbWu4fMHlbO8xak/tBg03T7tO8+/vbNngQ",
-	"NNgwd6Ca8D/9h9s2eBg0eLja4Gf7j6DBzw4Otm3ws6DBVfiT/U8PYQ33P73/cBcostNFEH0dtZwiXznw",
-	"rY9M8+6YZs3PX6eIqAI4Gw7KSpionOrnSl8U09BHF1YT/3BB82Dl2oxljTZfhoYKqv9y5kQbFE8W2nI2",
-	"cw71inE7ovAh/ohlRF8Enik3B3MEWcFNRtTVhY7RquqqIqfWGUC4N7d2HJ1Sog5gpzWbGlgWt0kkPjcm",
-	"U1LjLdsud5nrCHDyMpoeAWzyY97yx/SF9+zpBVQMIf1FnqRFcJlDV+9Cb5mX2ODVdWzmnTy7r1kJBREU",
-	"oe0qpvqY87RK8zlHeporHUCjDjUZw8WF9wOwoToIwhRWaYYUIUeOZSUU/Kzg1U1SKeDyRYFNvlO6ocAm",
-	"Lqom8cDOv+oF6Ak3N1KcI19Ew9I/05LU+V4IBW+oJVaqMFY1rcnVJgM+VC0BFxFYQYbakMuUKtY7Vw6X",
-	"TzRc4VdVPUCOlK4BNjoJXCV3ryDuqga+LwDu2yt/72NEd6bybRFutJMK+AvR9j4KvT+z0MtOZLYQrpKs",
-	"jyLwRxH4owj8UQT+mURgckm8R0n4+60Dqt8Rugem45JqpAsiGuCUnKOMy6t7Tz67fzF0y4eb07NK7k2u",
-	"xirFgjNVwrcugPoW/oHThX7fJVJhWOtp+sco5F8AbKa7k3R4b3UHdw9BpjIf7ztbkb4JYid9rUobVW8b",
-	"R21BNAbXsMwVRJvO5gsMAtZjFTnmrnykiPWRvavQ+YTclWI4GxVPTOIjzqhzccgU2EupGZhO0ZBJRoN3",
-	"4ckXKcg+6LXlQTj8M5xpOIwyeNpXfoLoPS7t5PK3cOd9ZpmP6TsNkz6G+rHK08tSjXdzdJTpy5MojH5c",
-	"ZJUCYBhGN06BxAUBdJREArsQc4bJiB7Fg6He7wW9XFWGuLaS10DEblLx0VAfhE2MzSJLRCWwu/b6/XqP",
-	"vpCmz4erfXEYfsFRk7AYM6D0hcmXLqhbYqinj+7AMmK1th70QpC05hxEX5K3Uv6MgwH4NFDV2iC+j8YV",
-	"9hbVa7Di55UuXZxPU03VXOE88OhAuiDGDmEgyUrlVidtrjvZKS8JvIcN0MdTlStgoWsqtIppanF1a4Va",
-	"sQVsG7JBKyeEoXYwWMhpZ9h1VU++h7G4IsnTSdHhDFfeV9xJt+RpwVG91WK4vGjYBq0XZa/Cp0dD/Wl4",
-	"XCpV4gYiDpIr4Tg8DN8Nis+Jttdy4KZEFN3r68/RYDsDHALfKqD4lQRun6GNV1ukQcouKIquJBKT29hT",
-	"hJdoniK7hB1qilo9xrjZgQgFhMk0zX/twkPLosAYr4oRLU9/9+xUnB4Cec0yRYm+8ecLnUBsIozh5blV",
-	"+SW2FlvRvpQZ4+/iZL86+eqFGJtEkbJdLIJc7Uqu2kCUSyD+8p/+BYKfIU8jWGx4PNTzXEHwkJaAb+sJ",
-	"I3wxlhpCtDjKlKpc4HCORJwoYKwx3cDyFOEvSC2f5mYWlxvZ6YnqolWCfJdD7VbIBbyilMwbzobO3Fw5",
-	"ibIMHZNDbefAFu1UqUJcIa2Dv2m5YcsWmcQYwRxjnLHN30Ti15HoRuI/RKKQ50ONkbO+GqJkJtUR81xN",
-	"0mteAsouNrbIzXyquKo0cJ6QR0lgf4YWimLbK5DNuCS03wKKKnO8lmNSMGvADBNpsbJk193wpE2zh93L",
-	"g1+r/CEtoTtjQ/275w/F5UHvQW9fxC9Pv/rjaX8/FjNlLaIJpFo8OX0oMHECmZLRKqjDJNovzn4XDfXL",
-	"z0/pp5ef/x3+TFMd0MQiOogLnRYR/yLoOEbClAd4qIt0piKPWAqS1BxBCKhtRynY/hsxb1cX8I5Qmjje",
-	"UEsxlnmeQj4wZUZgDsOL589fiUlOFVYMCBO/e/36FRR40T5fp5jmStFVofz8hR6rvJCpLpbifJFcqEIs",
-	"FWcmBAWWBcZ8QRY5VYLEzeHYxTUayKnPm/0AioinM1VtpI5HytTGHThYlOVciZL29ErLqjkHno8C8jup",
-	"PG4d6hEA600qIGU3H+3N321I8bQftaufX7s6q1bGp3TkhX6v6Z2kW/kop3fN9aR2AvHTUyzn/oD2QTiR",
-	"Aqt2iQuj0KvlpEZbWsUhHQPRP2qFsgpUsepqVK50wVIQIP2HtbHS0gPTLpU7iIWecGpUUBLBi4Il4gYH",
-	"8bJ51gsXAaJNESabV6FsgN+vyUcVm9NRsSRZRUJP7YpeeSXL5T7iVBpSsICXOOQQ7x50lqKeeFZgvHui",
-	"LIfnN2oS1seYD3XQK+LolPJfXUmHWH53FnjDnS5HYCxpYVU2QQ0BMrXQpuBmGqh9C31jZiozwaBwGDp4",
-	"OWEV+ppC207ecAApfDSOfE6ASJNKGmqldBPWcgBbOAheoBJxsWlfTKzwWDtTacNGWW1xUyOtYKjL2a13",
-	"0vIC3oWjdgeWesuozEqc5NoIzUeD+y5Cc3MwZUPM3n0KUzx49GiXEDtexJ8J5LTC3hvZr9eePfZjXhqV",
-	"XKLpxwphH50u79+2myT+NBYmiED6zpUOK6ZqtoswssHzwh3tfe9972/ft2F3UuatEbmPhBznxlqYKF1A",
-	"V8CIuD6afYd6xe57JG5gfr4rFgRYn9oGA0cQBE6Zz7ZGfyKytlaFWqUzUIC6MvUVxsy/rgG+8SO6mzCZ",
-	"9+lGqq7NR7Xnl054Vm6prJ3W96YAlcDzdIFLbLztNKHN1OfzJYqj0AkCaggpvpNdNs+GQSjo23BahEe7",
-	"R/UGAxGH2g8U8Z1thJnvfHdhwFw3pRx/aYYRcpGkWHE+zXBY3/BLXDSuAf6vLKfGfmTgB8787KEIFRjd",
-	"xEwm3kWEIxFtyNt1I+xEFeM0QHwpDXa0kVs0nGYUQICiBdYJQecKzXSBFXao297q6nWhFb8KGbk7rBz4",
-	"lYZGGVcU1GsEixRNYIdRoNXBYsAUcSEhWKiEgoSfRoVxk+mQjRP+HSwn956ll8qv9lDjwnlXCTKBRwO/",
-	"jLRzbmsI3rSBE7i9PHOd3YWy0ED934Hsf/XVs8eO4N9St3iH6gh4t8C0QujoocngKjf6osbye9sXmPvG",
-	"37WfqchcuedrWFx5JcsD/lGT+KhJvHeG7q6GkOXJ2x6k+iaezYap7kwWKk9l9j4jQsYmTwjlmd3q3Cei",
-	"s4xNsrZ88Bl/8cIP8n1SglpnG0sKuwF9xId9L0WFV47KTtWE31MB4bHK2XaeK1cJ2I0Pjr4tAE/eGkao",
-	"Ye8f2uL50zG6yGN0ZrokFnU9lzpRySjwEcYUqxiPQcSVF2pEaDcxY4DEhclUTtV32z/9q5BRaf7N1biQ",
-	"+mKRyTwa6oX4jZB7f/nn//U+ClW1EZq84nwkYI55ruYy58AjQCKkJBk/UcKwBWFLi9i9PJqg493BGPKs",
-	"+WcGILKFmkOYSJYCihTHokJAwCXAj5CPePbcK9JpPtR+nrZzJAJXRIQ+YGzCebwRrN4HJcwlAelyIMNv",
-	"+IH46Ufxb/83wUPYw+47PqQqV5ksQLx0p2+oQ7/t2MzOMUGi7OAeowWheEzTuGeF3GvDiv/049edoW7/",
-	"7clvXwCWifjpf3/Q2+99eiSeLHIJNGfv5Nnr4xPx5VfHL8TxfN4TT3r7gN7DlZ996bmhZmBy8HcAuQQ5",
-	"FyFe0MLePuw/2lCzq07Wfgn1kWsp4gk8+OLl/e7Z65cnv+8C8As+rxx+TG9vuiytwQP8Ic2V9bbyh93+",
-	"p937/dcIZcC2ckhlaQ1a/vKOZuWSZAY+fP7ydZcM7fuIWrCA2agctGuagzj1N/+MfrS1us5RC48cAZ1v",
-	"b1+vbdLPZGhfOStrzT7M0t0K3q6wsRcD4maRZO97OBsfUyU+ytrvW+YgmhsEK4qANtyyrPHa83znknaj",
-	"aftGst9goIDh/RVYprekUiVx+mid/iUAr7/L3drNIk2F/3auaPbM2oWyYOKUOgFJEpoRbY8pvX/wmThP",
-	"C9spvT2QHKAJpto6K7Ma56rwpmOMFnGZiDpbHnmoOJU7/HB4jiIoY1EPNVZjxcBQzFfIzAXI1OulvNcw",
-	"1J9VtAuwdtE8EaJFfespTOVx1KKFq7k5tw9LwFn/TLIS9n1DDi0eoKDABx8NCLXVKLx/rMz6UVjZmZYi",
-	"mRKSTldAQ5nqbSme0Ns+b5PKm29NKk/VpXnDujC2dMT+lxJ9tL/fKRVyra5LjHYqZDPUAZSqi/vKsd2E",
-	"SS859RsLseJw11C99+d6qdCSw9XVomVJPkocvwSRHrbi3a9JrnRi31OpKHoD9OEafjaC3TpbV1idMcjm",
-	"QzvDUEP2jj//sWhz3TUR28zMAbEXQXjOpVUhTvpMSXKWc3jA2WNsqcwojN0XcZkKVQ6X3OQ6MVdlhwd9",
-	"KPIIvDU3mYMGtmCmK8RP/3ogzh6L9pXMoawj2dx++tf7+JCCeTsYTQMu/KE+m6qrqcwhkwv+23529lI8",
-	"/Oxhv3vA0/lG2eICc7sxpnW/e2DLxiOx370PiNkH3QMbidPuoY3EYXefopP2+9eAKApZBx20sSlYSEkp",
-	"p+XC2moWqKW8H0Sz0KbwqYpH/l8hSAbYQDmuYKhj38FATGRmVQym2MvUZGR2dQZVi5MJK3tCgxD3fGky",
-	"jDXGxJyJunK4z1C0pb45xVTlHDDrNx2Ag2k/MPZZL7KMk46oy9SWi9ATx4SpLPYRTrmc1VDDwT4SALuh",
-	"x1RV0RXO1OGJwKACrKLZ1jJH0PDCrQXaiWET8VoJZuhRIOoimshYRZydeW4Q/2ZJkeZD/eWJQEaeLHJl",
-	"Ke1fjse5StKCkexzBdbvApiKTsTZy1dct2Gd9/+3qsDRrOEj7x/pqKkbvvzvtQ8/263RiHCdXvnPGuCQ",
-	"niDKCtCPMOIeQgAxHeByLZ4VHIw7QOR9LouG3tX1Db0X5g76/p25gkzkZf1ORqUYhPmAVQIaUQGkIiDS",
-	"60bpfm+us3kQltk8qFTZPPjARfHoPq2L1VZ5CosCV9fNKPJQ8jopSeNH7+p7KCIPqdZO4uDKcO5CUzoj",
-	"JU+imFFj5rA5Vc4biFV01u/KgIPsYW+emaJnLy/ek/iFvVRSsKnfuAYOVbKFSFAoEOfC8PKglDIIZQcu",
-	"9kQRzxy8p3SBooFm3kYy0VAHohCtcxk1x62h6EG3QmFEeaZc6CL6ibH6Wwa8+7RBGAFxBUe9ifm9ykxx",
-	"9vVvP/LAjzzwIw8MeGA6kxdqz15e/Pp6lt0iLxhJw0c2dvdFpEPSSzm+SLsjQVTsjrkS9K3GixyshkAV",
-	"z5XMVX68KKatwR+ooAAa9NfljdCvrnIlK2oBMu+AVT4wWpEVjUNRXOVLmSS5slbsmbnScp72lnKWYdbq",
-	"RBXjqcMJaqveRU/E06KY28HeHsOXZfK8x5b6mCNFFnnWGrT20OTPa1Uf97OgnNdCW4r0LqOFytTWdmlH",
-	"sJ1eeVXhqwaA26dU5DVsy9EISt0LMHxAALBBk/RiQ6PPNKy+EvNcJenY4SQ7A2MFsTRsr3y9qdEvfRg6",
-	"jCXMAAgmiS80fVymWldLnEc+Q7Fe5LuYKgcWM1EqqfTCaTgr3XzdmG4clfnXZRlRTh/QkB0yVkHr340b",
-	"Gj5G7puOZcZAGjYIzeLqjRIzfE2WjlMVLit/0NTqq2dkkAtfpwcNb7/CGFe/YKaa4qkyNS5yo9NxGSBb",
-	"2Vz8uqHZ5+C0U9aXTsZ/zlSRp2PXfnA3e3X4Xjot3779/w8A",
+	"7P1fjyNHlicKfhVb9i0kqXIyGJGRSiUDBUwoMrMquzKVqYiU1NNFFd2Cbgx6p9OMcnNGBEvKRe/2YtDz",
+	"2vPQwDwsFrh3d567FwvNYt9UWGAfLro/w+qTXJw/Zm7udDLIyEhJNTcbM6oMp7v9PXbs/P2db1tjM5sb",
+	"rXRhW4NvW1MlE5XjP09loZ6ns7TA/8CTRNlxns6L1OjWoPV6qkRh3ih9z4pcfbNQthDfLEwhB2JqrsRM",
+	"6qV7bkVaWHG+GL9RhZiaLLHiaqq0mCyybKjbxVSJ80Vui04k5ioXSS4nRTdVxaQ7LYq5nKfdXBYqg3F0",
+	"eYTd/sc9caZ0IYwW6lLly6GW2l6pXBRGSD+iq7SYCikuZZYmNNzeULeilh1P1UzCrGbyOp0tZq3Bwf7h",
+	"w8NP7n98+DBqzVJND/tRq1jOVWvQSnWhLlTeevs2KtfmlcnS8bJ5cXAxxBzfiEQ8XPT798c4CfynOrr6",
+	"DT27SnViruhhPBAxvhOXiwdrEtNL8VBbNTY6sYKXDdb0nhU2/ZMS5lLluNS5mqRZJmDVOpFQvYueiA/6",
+	"/aOr3xzGYmLyoX7QL9uXgtp0i4V7IcxEHPT79dWay6JQOUzxj3/odx99/eujq9/QP/6nll8qW+Spvqiu",
+	"1KmayVTD45XFOnUDKRxJiZlcClvAHKzSidDmKhLFNLXCaCXGZqELldAKXE1NpobaTyZTk0KkOqC4zpFI",
+	"1DhX0ipLU1RyPPUUInXC62WHWhaiCOlaFqon+kBjUhwePLpT2jlVVjWcqzPa30jkZqETlYjFPBILXaRZ",
+	"ZWh8mlKLp0jIC5nqoW7HvvmuX/FYqG8WMrMi+BH/G3eORJ+OYuqbupM5qiJfHk8Kla+dHxzTK5kW4lxN",
+	"TK5EDp+k+qLXilqwNWmuktagyBeqMphN/b6NWnOZy5kqmIWdLPJL9exx8/Ecw4/3rEgT6DKFx3NZTFtR",
+	"S8sZNpxsHMr/lKtJa9D6q72Sg+7Rr3bviy+ePcaFeJao2dwUSo+Xv1cNfOJYjLNU6aI7nhqrtHijlqIt",
+	"BXwP+yHFhTGJGE9NOlYdUUxlIWbyjbLI4Yo8VclQX+VpoYSVE9UTT4ATilcvz17Ty7YwOb89NnkiCvw4",
+	"LUQ7X2g7EFapoY7hcBTqdKHjSFxN0/FUyMwaMUn1hcrneaoLK07OvhTnJkmV7fTE79XSCpkrYcdmroCx",
+	"DnV5eKlnpfEszY7wzMLEYF3pBPPZg95koZhrDXVuFnDeYHeCvmkhzn533D148DGwJejJzFUuYREj+FTA",
+	"zg11uft4qpEFmGQpJLyQW5XgY6XHBs4VHhnRvpri8s3lWMHPQz1Ts3OVC5MncBcZoQ0selGo/EhIEc+l",
+	"tVcmT2LBL6bMdMyi6PSGuivO5AwnHAkrZ8FQsfdgYpGYpMBpHScCQspUoZLBUAuc5UcfmTy9SLXMBF1u",
+	"H30E3eHa8vCxC1vIYmEjni1MQoj4uRljt3GHuF4cEGP3VM0zuVTJQABdxxGOTZtimuoLkVpoAOiqUBom",
+	"TePk+3Us8zxVdl17E5lZFVcWAvknNK7yYDVMzhcO/wKDH4jDgwPovB3TRT8IO/m9WsbVJQZyzRSuVXUt",
+	"U8v3R6rFJEsvpsUA36KbDqcngT4mBmgPZ18AH8xxHnBEsJ9j3yAS9USmGVw8h9fXMPwH19cdkRhlkUZA",
+	"sEGae6OW1NkbtYSecCwmVwkMBp4XudRWjmkViJ7xEEe0INAGrTWOgY/nazhbMTQG76vrsUImMhDS3wkW",
+	"rjma+9RcaWG0o2khNB4zGkckLMlIMFd4/bD/CE4n7H15jFNrF3D9aDgHxVRBK8ifcnVp3ii3bPia38R0",
+	"gsPnkVxJKzJj8Vw4Jkv7WrLZ2gbX757nSl8U09Zg/+ATvHb831FFFjnu/q3s/qnffdQbDbpff7sf7R98",
+	"8rZZJHmmbZEvZkqvEWpT/7tIE6WLdJKqPEImYmyhknKTgIeuuzzKTm57iTzzneOwX8kLdbLIrcmbhx1r",
+	"dV2MxvhG7MhqnqvL1CyA/12oIyHPkXUA0ZdHBn7ys/hmofJlOQ1qrrXtkHl8KAIs9LqbN1/o93vvvoXv",
+	"7dxoq1AO+FQmLGPCX2OjC958OZ9nKXHJvXluzjM1+/XfWRjot1v2+Iq+ok6rU30hs4nJZyoRdqkLeR2J",
+	"q9zACVvOFXAP1EoWCu4NmybExKjZgZi5b4f6r89efhYJKYiCQVrLlZBCL/DyOVeZ0RcW+LdY6Dcajv0k",
+	"VVkCn/ABESDw51JfKHGZmkwWCn/FrRb+ziQO57kZLM2Sjm2TUtj1WmHT6vAXezUdMpR+u6XqtFUL/Hql",
+	"iYpOsVUr5Re1hlgU37IReBt3/MToSZaOf1K6wiOkrFnkY5Bf4e5XcKTP04TuBndltSUJuQKYgLpSiZBZ",
+	"rmSyjIQcavoJeJlZFHjHF1FdcUaShKs2LZk03gHubh1qulw7HyjlBkp5ihuUKP1Tkwpd5pkcv7FkKCGh",
+	"XWQpXmapFvF117HbLv5m496Hzdy0mc90oXItsyd5bvKfckNdx0JBz6QqodBvQWg1OluKYSutvDRsOem2",
+	"FI6TD/u7cX8/M8VTsL781GdVSxAXHHMvL2N1ndriw55t3LNXcpkZmbw25rnML9RPvXV4CkErU3wLW5Vf",
+	"qvyeFWOjJ+nFIleJQMvuh33cuI9nKr9Mx+oLLS9lmsnz7CffykQW8lxaJcZSw+k7VyIHk7Hyhmja3XSs",
+	"SNdeFAWI5om50hEK2+0Jyveo1HfIcJ1qW0g9pi+VhRYT5tjnaiwXVqFK6fsGG4wU8E1y/kEO30Q0bG7u",
+	"envzxo9LyzTu/mtjXki9dC6In0U4CxxouSyQprwn5wPHeI+b/4WWi2Jq8vRP6ie96l+k1qb6IirV/Mgr",
+	"7yYXZF9LxLmSucrZa/mBBNaTwFdffdU9XhRTpQvYM7Vqdoo/xbWMncVZxCgbx0IWRZ6eLwol2qdPT8TH",
+	"Dx/0O5tdUHWDIhHSPDdjZS1cV090kRbLn5KevlJZ1mVbU6rnC7ZWn+dKvkHnzyJTziLIF9cRr4CN2S0D",
+	"F9xQm8lE6QQuMzQilZrDIlMfLqEbJJcvtF3M5yYvVPJCJal8jZTyUxuG8CK5Z8UJ9dqFUcCVok2BvreK",
+	"90zIMfgR7Af2smFn37rjj2tzjCsm9Vg9g6MGj2SSpLCaMnuVw9IWqbKtATrC6ntUfi2Kaa4sRsMc4enD",
+	"3XGeRPbUwmYpfZFqsPQlaiIXWSHa5N2BkAUy4BhyK81UMTUJsq95MI5vW+dy/GY0ltl4lJmrUWEylcMI",
+	"RnMyXKrrcbaw6aV6EXjXgZ3IojVoJWYBMnhUBgLs90vvO5mhYZnLTmapHoGXdDTJyckFnWxqrzGeoKnl",
+	"9zT0qZkZO1aJtEU6TovlSGbz6Y0n8RhfehuRvQW2dcfvwCY3MpPRJN31y5nUiSxM3hBRcDJVYOm7gngC",
+	"9FcucvpfIqZLlSfpuDjCP9BlR458mVym1uRL9MkUamZvdPVAP5/JmaLxXD+jj/bL9ZV5LpetqLXQ6TcL",
+	"xb/DbcoTUNnOs74e5ZNRbhO3/dWp/+r07LG75pz/R0zkuDA5TT6WlyqXF2qUT2IxM4nKhMwyc2VFewzT",
+	"ETE1H3d64jEftoN+JCSIjOKLM/Hk1bE4+6r7yeHH4gUeNvFJv99/LNqT3MzETM1MvuzQ2mby3OS4R/cs",
+	"n0xhFYfCmSsU6O6GenFZ7B0fCTjDmbpUma3EAD3oB2f1YDUGhz7MR/abhcxJqH6Hg28WRZaqfDQ25o0d",
+	"JXc3O9ewLRboZP2TusPGwSu8I2VfqjydsFywyuSqVP7drx5/B77D4BMyE8g8Ee1nJ1/unZx82aEIOgjE",
+	"xDgRW1CEjTYzjCZBz+NuRD7UY5ml5yw3hN1vSfAoPt7FEr/1T8z536kxChzlvVoKHDtcyxQ35W9kjBox",
+	"+VhF7tK15XW78/26Or13vzx3uSS3+Hr9DbjFxw333xZfNd5+W3xXuft2v6oql1PDTbTVCOr30LYf2V32",
+	"pMqCb8Vpt+GoO3xVY5dbfFnlhVt8sAsnBH2HuCFc4iqBI9vMF61oJwGrW8/kUHi+cZhvQ/vAH8KNqtFT",
+	"E5WvPWzrz3C0kcNs5h51OqlS4goxr57myiY208IqXYXHdOOmft3Eyx291GNlbXqhsSE9Bk3pUmW91sbb",
+	"o997EIoYvX6/v99AdMdaZstC3XhnVLk+CpA38Z4X+FL9unmaYrR7aoWkrquRkNiyKKYy1OvuWRHjDzH7",
+	"F7xHoSLWwi9GK9+wmQjJLZBSMNSB2D9JiwIsjUshRZZq1XExYoNqz9gx3OBvXZjW9rFrUeubhdTFjcIQ",
+	"DfhzfPctqg03fvMFvFM/jjg+/r6RvMKOdtTetVtXCGBzbnYvfVEqAViAwIIGNjPbE1/Rzja8XrhYuKEu",
+	"GRW0YSUEAluMtF2KOLUjH84Wi3OF0WJx+Yg8UhTPk1q3p2QUGGr3nkDJTRyPrveOR6n1ciF8W05qbPRY",
+	"6cLFVsNoJI+HdcpnZ0GbWapsJYCN0lREew48RBdOHXOio8ntPTFTUotnZ15HO3JC1lB/3P/x7//L/sED",
+	"8atIjM1sZrR4dvKq++JMzJGhgUQW6lo430xeXHBsNxyjqcoSioygvYAgOoq0S624/l//z33x538WSZot",
+	"8Ir48z+LCYnEJlvMlPjz9266cmYWuoAHSb4UjqG6GF6/z0MNlFama8AwIN0CqJ/HURGN5XicqyQteIVz",
+	"dbHI4Df88OzlK5i3GmqMzTwSsmxLzFVujeZoLhfMkyu7yAoSrmtSaSb1mxE6kPx1AFdRlplvmrgrvk/8",
+	"AqlSWLAlAoP5u0UCC4yRh3C7KM7f+g5W8zvx43/+X4iZ+TXiXX/+/OXnou2J8x4EA18pWwhtdPdPKjf+",
+	"LHi+EzW0HCx26Q/bXZFoEppxiezivAiE7Vq6Cv+oEiI8tNQRhdxjcuJsI79cnGvRjqn5sclzNaZIfE/q",
+	"ItZGK4yzUhrG94cWPIARK6lHxHhH2EDAxNjpELWuu/BV91LmaL2Hzz+Fd8/KqXxGzdUfv1BSk8TzKTWO",
+	"ZuRxOpOZXZ39KRC1KAztL+b0uZfx/lEygc0uL+ZCUKyD7dUXf1PqDgyhoDUigl1jONhkLHD8deRoarc7",
+	"KrUj4l2jaXoxXS+mh5pp/6Yh+TZBaruTJh03yG/Uej53b56Rk8yfoVuvcNnC9ndz1ApoY8S0sUpnzhBx",
+	"H/JxlBaxozJMeCDW0KmSVCjZ7Tdmoa3e/IskLZ5cqi3u/SorXcccvppKSnJIjFYu0TJf6B6lbCRxJGJk",
+	"fT26lMu/5Xyem8vwSa5gmCpBnlBzMkYttGKuDuAzTDCaiFryFfKr5nZqGy8L1S3SmWp6N1GFTLNmvWsu",
+	"8yIdLzKZ20ikepwt0GsoXaxxjkEN0hrda0zCCAU2WbTcBKOWV1u496/X7eNzc7HjLqpLl+a8ldkgoJYV",
+	"u0FtBtxy01hPJMoZdg3xsK0aaD/lrDV01Q3YM4cCvhPVgkgyLzGN87RQeSrpdpovzrPUTlUiLhZpAh83",
+	"GOeqEshQV0UQ1hVAEgEflJjnaqwShU3R5pK6UJdLhtpncmZKWnYX+5Veoa5Zqp3PYNUqgyabHbcXtnBR",
+	"qGR1pZ/C6yRYoDACjUMWcZYIju9y3+JqaUryUwkyH+wLVyYmkowp2PZqugxI+9yYTEldPTYrc842pNKX",
+	"tkckBRiRzDnb6EhoSPKtzWAqgVQ0JpNc4b8LP5FNdow/OJ4etaBZFAE2eJS+mirUSkuFkHNQUSagoQC7",
+	"TlTVw4Rq5lVqFc8odDGtrto2WmXFkEdbFCxz0BjFzzZOJVc+oMEniTqZDCRvPEeNrNPCgbFFOl6zgcoW",
+	"wr8DezJT0uJhRe0j3MPb71SzrlsOzdGYX5+oPBdVowyv0UZGWy54U+Yy/Ogun4BbEeLBQMSlXQxuOTKM",
+	"xdFQx4FRDH6p28PgmTdpAWcC0TkSsTdiYSO5gl8ulZf3RhTSE4nYm7DwK9CXFzIbgRkLHrCtymIrM6NN",
+	"YXQ6hl+SPJ0UcU8ET0XbrxmwPaaUjuBNsKRjk+5dGGAlQDDjIlsK3whF86F2bPI3aBqQ+kL1XIcY6+l2",
+	"SchCpPpCWTbBaHXltSebmbmqKO6oSqPi6D2flK9T5jDCr6V+f9AXM4N5smOli6F2cgj1YaMy7+crZYsL",
+	"mSeCBBMyZ4g2ZYz/9slrsXe5v1fkSicW/KXPKmdcLHSmrA15RpYSEIiQdqj9okZ8CMMsagYHUQjmMZVa",
+	"7PdFbZxDjSHxkeuHGii3ql2UoAbOCiBqLBJylmJveBmlepTIQsWO+VY3o+S9+UJzyBR61FwDYibxHs7s",
+	"Uc1op67ncFw9ndqY+WdaDHV1yCV9mdyvZYSjRmYLawijZjf1OuIMZ+ByPUMj4VCThRGij4nKNrrOmeDg",
+	"tFSMxTG79Fh/bTCDVw3gDabv0HjNJ70VtUJr9ZpjHhqq8a3gkJf2aByJO4atqIXnjfhlddeRTepLlV8o",
+	"jUwRpJ7Ugj46z80kRZ5MM99SHUfW+QLylXlF6IFbFvzruRy/eTl5mhbuwe9WlweffyrHb04qS4SPT8/8",
+	"MtHfvFZnPL0nvFL447NgufhtWrNTWjJ89rJcNxpvsHj44DGvIP7h+rHP9GNaRHx8UllJfPTKLecrv5o0",
+	"hskprChlUpaGx6brxrmuaxZKNseVHA500xvcAqBn+/+7QemFDM8Uxd+Ga//KdG2aAFfyb5FfAs4S0uel",
+	"zGwk+r0HcDv0e48ePbrRZfHo0aOK0+JB86iK3GQYp2Z3NGKfTdXVVOaoTkAjZFOzov3s7KV4+MnDfveg",
+	"44QVnx0KOQlZqtWq85sNi2A12dLHx19k5mrLD3C/1ZYvX8lcg41ihwG5T7YdUU0I4+FV26kNpDLrqLJo",
+	"X5fSHktegVzOG326yBplsPKSBnm27f9UhZBZLxInWap74mSqZj1x8FC09x99st8Rh4/udwYi3u8e2HiI",
+	"GgTZx8/V0uhE/PAvByBPtHkCnSN49b6N0a/k37kvzh4fifgAGhHFlQERRls1XgAHcq95gQRbREI7EvFp",
+	"95C+EcEnETQ/1PLcXCrxa3zfRR8zPojKzJX48R//6YB6PuzuW/B3LXKx2vNQ+673w673+9exKJSufMLx",
+	"k/g2ejLMxEtX1TsOlqwVtWA5WlHrgP6C6bSiFowHfutfb3lFwKbuUwvwr/vuXwf+2emh+9fhvn+vf02U",
+	"sQYL4uVcfrNA7BGrCkEADqIN5/fjw0Venuk5sAx94axqDlfjwf7BVjgbo24j5FdEoEu7+tWc04pMYeIr",
+	"L2wpCYO0VW2dX5ZA5BlI8WOjJpN0nCpdoIhflRVsTOr72FzKPJV6rGJ0fqrZvFhGJMHT0bZkPtMKWodu",
+	"8D04jJGIWbFFATGGiEpGzYlREbJoFhhqMAs0OGPkmPjFSBaNamkpW4Im796u3hWbbHWydGGv/DYOTFAb",
+	"1Wv3HnyDc9otxKYpvCbcmdWJP9PkWe4CQBmDAiUqH6AvWubiD+f9SJzvfx3xgxHBIYk/4LNvFjLJZZGO",
+	"3XuROD/4+gi9S9wAtm6FtCJGTzzbbtoswGt0w9C7PY+EMcJf404lFna7EB+2aD1oWoj1csRJg/SA6H6k",
+	"u6GLxdkovFSxVaRK1CqJvqlf95uYySJPr13H4a5Fwv7wr+2/+f//v/7+q7/p/Ph/+v/88P+ORA4xs6kO",
+	"36OdqyzZna3d5oUlU/vmg8VgF9J7x9HNjmBI25+xZNKEXUhCtEjURa6UhRWc5EolZhYJDbeVmAfWpMDj",
+	"RWH9o0uV20aJ93XgNoeTQe8Tg/LaHaH4FM71gO/v7ff6vX6zG4G9pkbfdKCf+BffRi3wsNsms+q4AOcM",
+	"pivQQGh4bA3UxhkDt44qf5oWTzN50cRJpkpepsoWpGPe1BCqXWdTmaOtME22Qw6KQtymRgOuj8er+a9S",
+	"W6R6XND5tU4rmZAqstn1mXkhfuOE6C04DWhZaBwe/TQCM/16oqKXhHup+XyAlFAZ+n7T0HcIgQITb9Px",
+	"4fu9XDDRRiJNMIRFOZMNIn52bl5Mz863gKq6VJ/5t8GgbNLGS4pig72dh0WSyK2UyYUbcCQucrOYU0AV",
+	"cfJU02Vu0/J62z7HAsb4CobVdCAqsZ/1hEAA5VFJlUHDJVKofJZq4ijtBWnSbCWqXLGdXR0IaNK8aUKn",
+	"+NLbwF5jkw081a95oi5TGrNtL/euO5ET2f/tf74SvxFaXOGEhR3LTO08crZ3jdjetdWunPJHT/kbbAec",
+	"YzcuAb3F71uKyYGPZJa9nLQGf9iGT31dF6Bf5coyGLLUwnN5f8grIWLkss4VEzA5PChYd7Q9p6zJ2A2R",
+	"M2736IU1sgU6sFdOxbtKDASIudVOntGrQcRhdRpfnHzxQoxNqRWuCZbzhqcVruyErNFW7PJLftuzTb5D",
+	"b/yOXwN7Bp6G0VjqJE1kodYyNf8GOBfGJncIlLFcFCb2EXWoC13DrYANo6M/S98o0UYVCqiOzPKwRIEM",
+	"subjztYMkPjYiRtlExd0cwWbo262Hf7OXHHnDrRWZiphmUkDpWWpRRRbYRcz+B/tUInjgFE1S1R+Vtuf",
+	"4a/8J6sH+bUDAVRiYR3GNYJeE0AwRcfQ9tApxnxfvBvD0YzQe6CSOx8V9z2eGmOVde4FW6rqEYEHe38J",
+	"ixtEAxzh7JEo2RtaEiIr+ueK6DGpzcpP987nFQxV2jd0JWLnEKc4mkqdZI3g5UBc8EqVGVjCceAIXXGl",
+	"crDIzAuO0shNshjDMUr1JNUpxH8TfR6RUcKti1ZC5saqm2NoCDSTGLgXEVcFwqgKTOqsBsz7nEAXUnXz",
+	"6jfxGKcnNJ3J+jLWDAOrt0lFca3KC6iIVZ1E0IF3PQWathfqvEHDi9tOYin5q781ooq1pqJhBsaUFQ2u",
+	"0YEObPGkZgPZwTD2JdhlLQXl1s0aeAGFd+k5QWxD0LCWFZJ2EfwBWLGkYPFcTYjPHB4cNGSOb5u2c77l",
+	"e+Mt39s2v+hiy/eW/W0N+81b+Ew/NRxRskvY4JpYn5khzzzyGdSftzdCnEubNgaTLTkex6UBlCmMqYbA",
+	"g8Q23l+3Mg46E+/NwtViNpP5kkwP8zRXdr2dJgXtWV7SpTJWQM5VCiYXmUAk44p7ymh1wwL+oTTEe7k/",
+	"k7YYhalJzZuVSYzsCV8UsgD+7mQEWcTV4B4ajtFqi+vpy3AAb6NvS5LMstbblYAfWnpHBhHFTgZL2zSt",
+	"YJPX8qjnqd01KPbWlLODWblGQys2IWlHM5PfSIu/k/aFIVNQgJJ901efqesiQLRe2QbbqjYXjGebJf8s",
+	"NFXscCdg3GjlOqAzL5PEDgI8Z7Jxt5vMtJ2I/WMmI4xCsyjGZqZITfRG4clCo5/ynhX/9t9RG4CEctIf",
+	"h1rZIp0xmLQeT02OKNSJwx0nf7/g8IkyrqgSAwX+EheSd/Jlafcev+m6kBCVVEUrYQsw4SMs/VDH3D7n",
+	"uWBUijguYc5tkUs0DcBSWZecQ24D2xvqV7mCyx9FNpTNSJhldWZhaWipvlQYQjT3r6NxHgquEH+KIWRN",
+	"JyN802KuR6MbiBZqldOgvRLCdFVG1z2+GOZNiTb+CtOnVBhOGYT3YOFBm7OqM2C7FEUNUeZOb2Mg7qpB",
+	"HSOKiR+uvI1y/Or4X6m8QmZryA44JNUJICPEFEGmEJyAfdDtavAUbsTIE7XtYf9xR+SSg1Kl5hk3zTKI",
+	"Cd1oL4AZS8/NGmy05mJ0vaGODFy4SS6x5oKQIjMXNaKV16ltDnzloweNOy+zC0VKSCYF3IFWMMaRC/G0",
+	"qYbI7XxLf7NnOCdB+/7hme/IP3rmenzOHZYv+57Dojsj7urbTWHfm7aBD/PW9wNHE3kTadn4x4drWy9Z",
+	"xZbCI564G0ne8U4g4pK30nF1yWNtq7JJlx9FwuTiBmrHV2N4MWbCv1MzWTFVxbYiPr472uB8YMY+2sUS",
+	"XLtW65RUno6QLVWOq5tEbYCRZ7Xu8JbU1UQJa2/pV5WKUruEWTk+fUk6nNTOCBJqbc2qHepywWukz7Vj",
+	"iaHR8B+KV0YTXeRjPB+8eh6J+CI+Eu5N/GluIJIW+lfX85GVxcIFzwUNLvv0cvWVkZlMrCqOhFWsT7Lm",
+	"6Rz2nZ44FjGTKRE/lpUZK4eCXBK8MBqVUyblygTTpruAaxI5T0ubxsfZueLw1XM4MzLmZcUsRUVprPes",
+	"t750BiItOFei9CigmQE7SEzoZKpEV6/6dGG2tWHDp+emmPqT7jeaU2+UtEWXbBXWBSRgZo1WKd5ha3Rv",
+	"f9PeKCFXDAwhw9rxy7XqLzHY3ej/pVYrTrOydE6SygttLEhhQBLln7ikXpdKixoIumhrQx5vk8OG5saQ",
+	"oFeRGZG48QWKGe3jKy6UmDZ/E04eyZ2NgRrBnQ6Twn695MjxSzs6oMb10NetwjoQaCMlCIhNHzX16ByW",
+	"zZISHbdd2/Ru+UaneS4vdh6lD/3G/WrGgNnv93/4vl3bOAy7qKxqZ6/y5y1chGh+3H0GxIO2FjQ8psoo",
+	"7LK5BkS2FO4DS1UD8INd50bG2nU+5LqjFX0nvmqko6N3ymEiwqkfg2Dx/Bg9aQY7smbVAqpbOSzRykFv",
+	"pLXgmKyVDupu4Nto8roK4BIq8x7iIUzIEKdPR6n4jViO0r3rUQqgvRSsWKikRFZwHLe9rCZ11FBAWIkc",
+	"6hV4kgF/xzyzPogkvcTId7LSNXxf9492UEBOMS1ORxhg/AYP6n5wzw41X7QdvEYxLaWa78SiMuFAhJo+",
+	"rRW6lzi/5bbgG1QX7WioV5Nca+AbxO6bsDeclXbVfgviid0QCSMLf23BRrqKnBewCdqI06fN4WRvGpLD",
+	"F1TIciJOn1rRRuSKdWRCpXU7zW2vi3rC5XUBi9j86VOfkUH1M80EQDVtXFFbbjRBEETVTvBqSm57deaT",
+	"naMT6+PbbWx2W29Gmba62dkHMwgcXjh37KYcGRBEdR096ZXGY+5vLXc781EUdVqFQ0CVx0Ai9jmKGBo9",
+	"JwTxER2V+MiDAggEJ9J0RTlbR/XtVtRymX7IlAkSYduUq3LMr6jVU9do8NNx2X7w9NR35SfPZuddkSIq",
+	"cd53ELxdCW/drj0qUzoqY7hXQSPKcBx8ieM2U9K3IHU4zC0MkhE7ux3kOwu83C3o8S6jFreCWGwU/nYN",
+	"p7p9xNJqyNEtY4Y2gKw3xFP8dDEIobO/wV9fJfgN/vsmVveYocCaonrpFyfzIHq/Shgq15v6RdunGP+G",
+	"+SDZLwKcsc6R2CeZmSJfbgn/3O83Qg4/CcO6dxBAbwobbMz2I8fZOyHLbA61dTIJyZ80Eqdq2Ar/2YEx",
+	"r1dPwV7ly4Y0wAg16SrlN00UtSIugLFzRHA4ZSdNPun6O5VhVsJFtyo/Hw49/D6Ii+Eea4MM8HiaD42n",
+	"uO1MQ2v2Ynt4rsomrRqaHMnwpYYdRGK/C2lvSWMQ9pFXrla/rB/UdQBdzbBTq/SycQGDysQ7LGF5grZy",
+	"lNS2q+oX4DmtR+Op0+92gXev1XXREHNHkSqK/L8MU56n+o2QbEdVGipiuFUsAwkZOxDd0OnFFP7N2RYy",
+	"V/ypt0dUztLdjNcraLkKO6q7MGoHq2nvXZZLQ0Iv3DScUiPrCTU2zKgRcYJaouaEmBFdl/GAEnrxGZak",
+	"B5szetilFlOZTUq4sEJmLnCeYT2qOTYAVxhP1NXIHz47mph8ZA9iyB7es388oCBUjCAjS8JQU884bDC6",
+	"E4yHX7wmUNtUBz3UQCUaJwk3ftOwttQTePkfc9Poev/KNcw/PlVXp775pyY/O0D+7AJJ1oIkSQERIVhT",
+	"nQzWqNDjeqcYkpdSLXYO3pVJs1P4d0pmxXRHnlCKkG71zBsixGS55dJQvy9/33JDOKWP61TOXTUR97Oz",
+	"7cC76pTvMTWdJakbeA/Y9hSagjZCyq4KLuXrox1sBRuwvDbDRG4HT7nS6EacyJU2N0Fg5Wps4ILbobld",
+	"rdVbWitWZ16x7dY3pjb0ck2CJY9KdCveoY3GjECUaGC5mjEUpQ5gkyKX5hExp4qcpStnSq3lzX98uFXa",
+	"/NflP3ujQffrb/vRx/ffNibSP9N/R5Co29WZqgcalZDmW91+obj1dQPu9bOTLyNxAjFauXexcidQaJ4h",
+	"ghkTjF8JAzRZebKiMCx58deUuJAmdzXUgJGwyzimJ4wC8M14xH9HJbQ134n5AszU7E3HudzD2iVIIz2G",
+	"dPVh/duP+NR/8hZuEVqsJlrk293Xm1WZVRQh15a8phorDLPrGO8TQ6VC3W7gLEt08E7F2iat05e3vBE8",
+	"Ff41DvoVNVB7+hTbAyt0SkWzXX9BAnN4/NPxJZx8/u95K6q8iPMsDQfuT9qqVtTyO7jrFE7KTs7KwZTn",
+	"7OTL8M+T+p+ftqLGtj7lAfrfQnzl4PGZm4B/8vkJP/saU1fR6r9DIaLVC8GQinOzDewdiXhLBuHFPjMJ",
+	"SbQnviDYtphOAkJqgIMDRcOlkLkaaiwaQL6X8NonaHKyslQT8kT7ah3UflSi4cOO2UEdVB/h4tyl1RlA",
+	"I89oKjCj1Dr+dr7EebgbKgKBl45lOx6PKTKnTsnwMCTluAPNBAjnvs4vY5GUCYbxJgz3GOxLN0Kslwh1",
+	"CCoHDIWnUIFUX4OjJY5X9xLSu4Yay1izIJbnyy6sB7N/H7mR5gqRECeGqqzB2051C5apHCKGgiB1C15V",
+	"bVZ3s4O0YkMmR0yPqYnrVKDxaUuT1IoSx+eIORreT42ShRcYykDiT2Uxnt5Oq+fVr+r1t7v1tzetcLWJ",
+	"HYIu3UyZedUKAN5gTqgtdWn+deNoWudK+zdYK27IuqEqFhzg7ZJkUKkHNRbQY67q9p/tjJpVhJeNVvzy",
+	"zTXLYbemtncitN0IZfuFLdc1tT/Psv5lkPUzBvPZUVkuJ+rhgMrs+jDMiYC04nMqTVLCWUcizswVc03g",
+	"yLEHumqIiqOvm9XMm1D2mhxjqMaZuVqTcOWnlFrBfTP22/kyGDc0IAgtrv3rH//x/9qJhLSltXBdysZK",
+	"wC0RbBkFmgEVQ68sVdvlbF6YAipmr6xjuIBu8VbXyJu7t6mKZ652W866wRnhBRly0Hkr3A42keBzWSgi",
+	"+FupmVvBmrn6QdJ6TOyj0iaWq7FKL1VyO/ZwK06WBC6/TV951+BWruy6xyKQsLeUq5scqiUnKVts3MgS",
+	"8Wg3bvJ6GpqLneMtkzniHltosclm3GBiu0Ucq3UDro4Jwg1Dj0xFlwBJk1+QWeZCmtzvt6ngVw89pFE1",
+	"rvJtEFcfu+I2Lv9MFz47k9FXI4JTq+OJWPA0qHkh4nGeFulYZiN0LcdgD/AR7pug5Wtb5FoZb4bbBSjY",
+	"/f1PDu93D4T7hp3avC1aFXUo3uvReOfQ58qsbjMOtwiRWO7e/boKJwDqgJooAje45UTL0NV0CWvcW1Mw",
+	"pV7EaP10WD8X9JEEnQcnBuu4c/mGzDSYk56d/E58fiD8qJySeb93/4fv//0f9s527+Wbtb00UXUk9vu3",
+	"68mmFzPZLB743f/3f8BD450DeF6qyCIxtjPCeDe4tbfETAy+2t48cgYffYrfNAON/Ps/MKSLBvsnA6l0",
+	"6lAoRQA+r5P10DptCgvFFvkcEGjWGRQxXRULkhbt38qZi9YxhVV63lgr4rm5SBuBuylyFi0TF1w9ObCM",
+	"O7O4s4lvNIm/8FFgO8korjTFjRV/6kWkdy68xKFGZJcNo2hWpoI1a0eQHjUqgcOao3OADop8oVYwdbh4",
+	"PeZYUSNkCgJM5K5aKkuw0CkQz6TTLJw2mhy2qNPZDPYaqmrbZLHcjN0ZrCMKkPzJDvpjLady+xNdz/9b",
+	"PdZPCP4Kz4Bd2R5MwyoT/1C/mKb6otd6W2vo28Z2SxAgmDjaR9eAetYKTKwlJVSRYhfLGUdYAWJl3K66",
+	"jwrqJ5NlLyzh40z87tmWxng6wk9oyL6AwLFvhKO/adcgJ2JqFk0J8595iYf5Y2I4Swxa3rn80W5AllwR",
+	"ZzWujYOZaUhQXGJiqj7Siod224BVm15oWTRXznNMor6JvkBN+bEojKujIiTrvRD4wRWw2ZLUKz+ouI7o",
+	"S0nRb8BrRlInI/90l90/8z0cl43Wf6LY7WOd+He+vmWYavDVyMy3wizxX7/k99cUXgqCWsNtuQlIy42i",
+	"gTvV8Ks8e47Ce2w9pTWfnhqGFd1pTZc4bcItwGCI6ra/RaijGwvruWbXj/WW9s9byARkH9nu6g5rps3z",
+	"VI/TueSgqLmxKNyJfEFJqjOZKM6RwFvufFlG4kYYIOfSJwrn+PLV7HFyA9Fw6ROwlxV2MZ6WGRjoIcN0",
+	"Y3GmCpEW/gZgEJZKthQkRLGMAbcQp0AVBngtxNvdvUSxi52/Km1seaWX36ze5q4Iab/36EFvneiwk8Cw",
+	"cs3fHH+41XVeRpsxcDOa3vOFJn1AamEWRddMugipuFKiaqghAMCKduxzPLiIeFh/CimD3IRYYKtdCg6d",
+	"WuWnoKzcrcQBPsR1qeBF0O7GF3cXH0DDz4y+4Fj+MDzYLSrhDDlPBngw2FX6jmH8nzz85LApiP92Msj2",
+	"BskNwsk66oJwETAI0oIg+5JXktzHyE+AO52rEFyYl6vGotYoH5sEG0qOxbufKssGPv/UOjGnAFnV5YEO",
+	"hGQmdc/yp+A2dp0AUUvS1u75GbRfvTyjWna0LnvfpsnbPfqx0xOxayYe0IHY3AM9Ugz/iWrBUaAjcp+5",
+	"WWCcjr1SuQV2LLSc+YyHRQalARtkrHhA4rv7k8vz63IgFBskRUYZu9hZOTgo20r4q46Vh4VvxkYXmEub",
+	"5gCzQEVpLZ4CgZtg8WoVC12kcJUpfffiYaNg+AsVCVkcaJYLm8S/ja7dF+7wVw9BTE6qWCzFb8R5X/xa",
+	"nO//8P31kYgraO38O//kAc7ioa5+B/978MP31z/8K1X7+uTw44+7B8DNP1upmdIGh4I+V/nFj3//X17I",
+	"HPKvkiKqILp0IjTqEG6HHuoV3KuBiA/nGQ0vEb8GqzWkfCedvfY+/Hm9N+788bwTVTBxhvoPMhLnkRhH",
+	"Ivn6SMQPtmjijxeRCD6LxMXXmMGd2mr+uyw4rZqLOzL+bs2UPRbDRb9/X4m+y26fZGQKi8R55TcuyskZ",
+	"YmUiOgtqkl4ei0TkKfDSaKj5mRIJMEfAwz0SGAyTp8ryXX4OA9fqgpLvJ8i5qAFqeaiTdDLBLDQ84Z1I",
+	"XFTHBY7LmSqgsuSF+I3Ydytx+Oo5Vr5EVCBaVvnD99d/POf1gwWvggD5l9r7uPTqj+0f//Gfzn/4/roD",
+	"QIJrvmLoIPp4CSS4pgW3bcv+142ESLI6YQe642SxcA+EcMb7e8s/HsSRT0hAWD6aHURKzZTUEBFUwVjg",
+	"peBHdWyDQQ1hAbPbYVOH2ufNryDb1HAWfBRpFXhhqOvICw3hTREu2enT//X/AkcW34M/QviEoQ4PjPgD",
+	"/P71EUeSweKlxZJtNpCS7euFhnU+T5/aoYb4s3pZz8gXGzroRywgfXEmnrw6FmdfdT85/JgNBuKTfr//",
+	"OALMBjMTMzWD/OAjAYFt4jfi//f/7O/hsHECizY87ojf4M8/fN+2o9On+Hvnh+9//Mf/2t7fm4lfi/29",
+	"Nx0IgEtEEUYCeHydQszTSwOyqPuNAb/iyg6PihG+B4VpcQypDc6qcyxSOZ3cLC6mdMqJmTKVqUTs713/",
+	"8K+RsEaEAXYBdFG0AjtEg+eKijJnoQm6umc9OqbPffH07ICkMFZmqJmoVsAgAhQIbAw6yFLLxW19UtJQ",
+	"v6b9xRdSXRl+XK93Ucu4IfppRfwPvmEg7NZdK1Drbg632wP8Lx41QqENjv/KA+YHrahV7tO2SgIwgudu",
+	"XMFfL93Y8NnnwQDxwVOzyF8993+ll6r86xWPGv94cj0/C0e++vClGzz+dEwzOH2KAkiAE7tqnpOWyo8R",
+	"RmwcFFhGqWuSZoXKbYnh5tOHAqcugbXCRjscs8kiJzlOXjD+yDuX8GtKR305V2gMaJLOjcilC7VxYWlH",
+	"yNC81kHEDzoClgTA6vbxf4hrmRP7B5/cInXiP6CjaP/gYbOn6BUKuLsiGt8CayFJLfhu14RHuV9vA98A",
+	"azCbF2sQSSeLLButNURnZvxm3Zgy56hb+So32U3wnRutddRyODbX5uqk/BiDJbwxVZ929Rbmybky811w",
+	"RbGfG+fLra4f6e2Mk5WtDQ7KAZvEgoPSsPG8uRtrieFLnEAG0PD1jh58XO2oH21DLF4VBEXHFl4TRD77",
+	"jeyycpyjlWiW6tQWxF22LJdqMnXsm4a/Tsvm4c/Pj4/LHvDtai8V++LhJusiYlF8s1D8c5Ev1C607pe1",
+	"kTLqgeJl0t17Bl8vIyFtcxb9XOVCaVAZfHAN0i/CbLL2GmPQRVrYHWuZhRHLPOMbj1cw3hsA1cvWt0ms",
+	"1ozdoYLg0J6IMciU4GtBn8DYUv5zwNkjPHSBmWz4fpiabnIOSA0THUh9UUmZ5SDasboucjk3iD6H6ohV",
+	"BUkGlNgFmdc0nMwkMZS4dX99Ew+CjsvYHpM3huAcidhpkZAaLkudEhPVhQNxh/fMKDemAMOgm7SulbXx",
+	"aTQuewNCc3OpGZ+sqmoDCu3sPL1YmIXFluOBrxNdNulL/1Vw4bE5NDqj/zt1+Soq6RwNdbzQHNI6cmoA",
+	"DbZU5uvx0fAVbagP6EXoW1zV8hH2V9U/O4PKrIY6tb7+g69x7Tbb5I4W3PuBbRT5nxxPlY2G2prV1aU1",
+	"TIuqQB6QZStqBVSJInZJR62o5Ukm+DeE/LhNh3/WdhmarOwSMr/68vqO/VL5Hson27HxgP/B96c8iPLx",
+	"MXS0+vhJdaq1Zp6/fNz08PPKw8/KZQgemlNjime6YSBuXU5pWcpfvnAL9Kxcn9oEjoOFqg2r/OnrCuu6",
+	"nbTwl5kfsSkrouGquHV2y93Uu9lQu/n1tMJvKJAa1Pht6zOjp2p7nDB6/1ZoYfTp7tBg7Aq4BaWc4pdN",
+	"oWJrkMuayqyMamHw+GltIeqTq0VRuBlsLUXwwHc+iZtiqqvg0WRWwzu8ijIWBnOXdwfr/R7umgPjQmPj",
+	"lWm+Stv1a3jn2q5husQWJL1lueggMadNpCPiqhwXd24hXq6rH502I26kQQrWRl+qey/4JqiG0Bg/Xhow",
+	"IYDPnBcy1b7wZDxJVZapvLms5ExJPdoRkMNZDTchwXrMnKA6IdvjkpvrPVer9DWI2SDhXKNAWYfab8pP",
+	"c8ZlR19BWS8gdiebvhO6NDKPlfyO6jwCKiiLGPrVrG9GcB5WSWEzW+Gbcze28peUrLQ5RelVrubS4S+o",
+	"+a4QQVrILP1mYQpHTHOZK11QANVijuGNBDArLk22mKmIQInpD5FqMXteViAoTKZyLHP1w7+Au3tcSKpp",
+	"01QGkfodzd4JncG1UpiMW1r9qKG6ecBYYW7vOAhq45ZDqG15sCwrswtGW+u0mTLMeaZmDVDDT0/Eo8MH",
+	"D8Wc3hCUgWBX92hdLg/GkVxhiGxuXAkKvj5R3ibbO9nymuOr1xS4fmoQBFRmaSJSiAZgejOTCYXaCGDx",
+	"lMdxNV3ucJfhVJ/Cx403mS6rPqwKozwrMZfFtHE6/ALLnGsbAKPP33RZJ+k+SyBCzAjYYk5EKBEkpHjQ",
+	"7zf2ZdcgSEM/v3v9+pWgF7C+dgVp8cGjRwElHvYbi/0XaZE1rMLZ1OSFsITf7HkF0w+00jhUerBqOPri",
+	"9JlzaSxdjE7YmLvOF7keoKz2Rqm5ygf8zoApJO61qjbVmzAo8Fc3xwDrdkMKToVwBt9ueUBec9CRSAtx",
+	"niv5prlQKNqLVN78fY3kB0KKvz57+Zl4RR+JVLvqPCZZRiLew3J8exQbofF/FP81Bm7Nj+KhhrN5cvYl",
+	"irgxvZHyrwP+XM4Uv86BEj5ikwwpN2F90LxuWtmy0NiOWsFlc+WSky9F+1edRrmoqbIMItzxy8VyjomQ",
+	"OhDrSofxdalB5JXQPCsmmSx2Ff6vt62cGy7qdStyE29azs+5rEJ+porbZCuHQcquREOOTISc7Fju9oi5",
+	"MaJhTgqBekeZ2qLyy3SM/nwKdmgAPiDDW7aFTLTICj8nvDJcbcxbfJvaETjLFrm6xcfg/diyAlv946bq",
+	"T6eupV2qmoTaZ1RSMBtGC1OxmDrzuFgNrfGQZ6zWTqrVoAqlE5EWnZrCnCsKptANIJC3Qau4Q0SGpqNA",
+	"dT+U3RXqB4zTDfGCwAi6V3mK5m1gmfgAIldjKCSSEUNIZCHPpcWVkrTggGylh9ohW4k2NmI5SlU86N8n",
+	"ySk+VUW+7B6D4laPAy87Z/0JO94hyAMW4yv+3v39EpsoIaDtOqlFJk67taI9NYWbl+2ITF50Wd4v8E2L",
+	"UQkXRhTGZd5P0ouF83Ls5NlinNhyI28sRLkK1LoLRqvvaDM2KwWhrqG5IGJpZ8djnqfE13YoKbujkZNi",
+	"G5Ue3x4Ka+KEoCqpoFQyr0slJMqukZarBeEaRFyTN/5U2xYakH+/1vI2MPIkhY5ltiafcKE1xDMrfZFq",
+	"tWGs699Yb36tfrnSWTi46vZFnmKaKTFT0qKNuombBXHnIftid1qYiXAEnA7agkiSWBj0/RUitUPtCspw",
+	"OclqJXcKS3Gl3EuwmiMRA7uDmpTxULu7pZSkXGmaiFuIxEJP0oJwHEwu7GKucqsSRo2QQ71Vtz03DQe3",
+	"HgsLWSiY7F9ltsHaUP0ynnwrarmRb81QsMdXlQb54WnYLj/7yjePO1jjfrsd01SPFnZDDgoxa2TUsJ/a",
+	"XK3BWJIXI6vGRidrkn0mMieCEOdqmvoy5SnoiJgW7aJCpS0ocraKzLDQb7S5WlM5cKPVpsShXwWWTwtx",
+	"oQoy7eNM2wuN2K+w4hHcWwR3Q6rTQnNZb39nR4JYZ2cN78K9aYhKZHxDkWrR7TppoItX9iLPWGjbr2jk",
+	"DHC8beUD13fktrj5+JNT/0uH/rKjIsBlYpl/w3bqwg4oArm90Gg5hRNYC4Fd6LTohNVZ4N+h4VD8+Xs+",
+	"kEMtZ1gX9s/fiyRfCgfCGQkq0l2UhWdLewi0H4mcXMSRA/3JVsBMh7r8Bl6qIbXYqCIpe7nYhRE/OyNC",
+	"9WXwHJvyEKLebeS7AUXfcu3UGlbcDcXyYLAbquWJG4vlkROusSr+uFhXbv527loCUBmtLY9Ee4fVUCYe",
+	"4GM7OPg6wM8WX3lnSUOkpy8beRsZZ234p5mHwuWf/7kVtf78/bbVEXBMLxZZkc6zZSviB4+x3iOy/PVV",
+	"p9wx3tVcwPFz9L338Jr5VmKRNwBs76FuUJzrrfojs9NW595vvM3LJbDiNm8vsubNLiBvuOmHtft03d+y",
+	"z+v+aDtH/XW/Vb5d0nX9LDadPL9oft/duvDUeOqrW9IEUBQQww3O/jC2ZDUUsoxpLzN8ONnVR9CR85JM",
+	"FGOT5zSUNd71ehUv/3/Brdpd/W1lS05DT129LGPp28UhE6rcSumjHTTbMlJzh1AfHOQiK55cqltVDR9P",
+	"MW4BgTqJNjBdF2VPKjrJWRRXmCIsnj97ccapr4URclxACRyRFr78gBQkGoqxzDIK5yPJwTsDnRs3Euj+",
+	"pSQyJx1E/sb1dd74c29h9aArlC0Pxie4T4eaXkTdz+UDqXJSbQSZIzwwmnXnqNQAcKoxZRTFTh2gNlK8",
+	"VHVxz/ZE/NsnlMBMzdq9b+kfozR5G5dxmRi9CkldErP5UZqwKFA33sh3XMZyl3bGklWCm1k4ktgJvr9L",
+	"IfVGKMKdbRTryga+Xg3qWV86cNX4z7lqTlhdLSW4ZWTZmjCc1yEB4juk/mgRU3gCrWy8C5dYZMXasJu7",
+	"ia9ZIZKVShOUOcKeMjWi47S9ClxSk28oeIgGihPXJMXSX6YQUWWbTRevp8yqWMdnIzWWI+Gh4gobrbYq",
+	"vRCYSd5G35abnWVUUmRj4cCAndy8mZWeWo7j3fxdqMl5SYjPk6fWVBcfH4a34aN+/+H+o0cHDw4fHvYf",
+	"Pdq/KQJpx6KqSNCjNaFfVn2zWTVGp4MCsOJUw6ZZxWm7pNAgB64cxnee3mqA1S4sbDtZDaaNDNkXNyCG",
+	"W6eUFSIPi0X63Q0XOaj+ujFysxaNVa3WGgRXbQrTqvMIx+/WiHrVu6LxuKLjgmEcJeHoMKOknR6IOF/o",
+	"Hp1eAuBdaKSHoaY1sJ3IFRuyPZlAwjX/JWSSkKVAcpGhmGrHc5FsyPCgB6GZMPaveUCoGJ06HtOjB90n",
+	"ubyC8Whn66xAkrg39KBqwUT3cuqU9Lonx0/UbzDOyO1sz5frXh21f+gH3YpaqyPetqg3bMXpQp+40eAD",
+	"uqnscZK4J2Wpb/jry+p48NmTYDjUiBvTV35InlieKpX8BClZSFi76q0kVzfctVNpRzNzs9/YVTF8G7Ug",
+	"3Xg03jJ5uTFJGYVXvNxMyTF7N4Zd8MyrIwimcLP25oSOpmQvNJxO0E5qcpU4BHo6zgPm3/Vo44ixI7Qh",
+	"jKQ4KKwjxmaRUXX0c8WQ43CKtSlGLu+KXA9tlLXJL8IobEmlgOiRWAEvcEb+JeBpQGkisyhsmqjRVaoT",
+	"c0WNriJF3CsrEVFGGn9G+eIlygA2chSoHoLxJ8CK3yGOAnFeeqxG7nE81O2y3lLqKlYJ9yJ9j/VFy3aP",
+	"hFWqbKzuH/6LyWTCxnHf8Z/VLW5hiEZ1h1pRy016tLP3BVaukgtFjyp5UHzyq4sUfEr5T5UHn/sHQd4T",
+	"P6jlPHGHtXwnetqU6xQMMMxzCrpfffyZOeEFdX8Xn1dXlZ4/O3tJS/uVW1l6fsbrW/M+VQ15uyZsJPUc",
+	"6/2Pb0yxxuCi2mdhgOI6Zyp05r5ez9JO1ZgTst/z1VOaKjd9EaqEDT4efHwjq3YYmTt6dxjALFHjlLAw",
+	"575c/VjV3bHwalPFgy3wu/nj/J4lmLZmvO5dMCF4xDdf59DxY/f2Bl/hZ0F9h2Y86FX4jtpm+UEFYvwN",
+	"Rd5r4wtT/Mmnjm3h29vyOgRw8x/T36fcxNvywW0SIe9i1d+1UnhQt7wBbJmgvVyNTwBmgjiAeBWu30+l",
+	"cVcWmfoyNbeL3mG1bI1dyFdFuzTZpXOcpjO1o93Yqd+rPhWcQ0NmWGaVFy73uwdWXMkc4ksiAr53P1ED",
+	"5MRsjgNwXpIb8mCL3GSwjrvUMfZeCJyE/y4KFrV5u/TOtbBBsZSWhdfeHVlndypkwCjFaXNQ1K28sjdj",
+	"/ROE7VVl5juA/O+gRy00CSMNROo6XJPoixiZ8E1lvG65dAiJ+XfEZMf2clv2uNBPsXeIUmtF5d8nZ18i",
+	"e9ze8lX6r3ZLBCstrrt+M9oez96shZW6zT23eyr76SLIYW8IziSjk0NLtmutu1VUZespAjY0qRd2oXjk",
+	"7WMmK/DPW03L1zS+CVgFzXLeblbfvgrx1K1zfuv8QWnElg+HX+6PP6c3SYzO3PNTyMEl62jwRMJvCIvj",
+	"Khe3onfnMNue4qZd234BsfefoCroDtb424AW7ApXsLmEnmvND2bN6t22qsAt7uWfklOHjHfTVx73712Y",
+	"q6+XUA8dWOF0rNlv0zK/6tvehlufYF4Qyzjr2fY963+0VPhtJsGWhrGQWCcFnOzula7/vtMTTyDRyOOT",
+	"S9/2PVuG4mGcJ3RFsKyx7wsMWEAhsbNLuq/JHFl7lhYkcGAqtUooUhNMTozKhdUDlkIWAHhU0iODhfvP",
+	"OPIYvuAsavxQJRQHiGNEqCOP7S8WVLN9pVBQWpR1gdDctxWZ1IjZk8iD/hZYbLXbcZVxE4pZwLhx9gTO",
+	"0paFmBlbCKRG1C1cRi08cl9Y8Ll/Qt+w2y83kMpkhIUl2x6bwt3Law/E9rA5/tLecEWXS7OWuXk8l5/E",
+	"xrSDBFOxNjUokDt4f1e0N/ZMbokFU8qId4c9tD5kZH+d0LtFnMca73YF0sGv/hbt3Sw6NpWkDWa3cTlv",
+	"VWX4p6rxm+TLkYvwXt2kx/kSuH6h8iAMvHDR1QJLhyT5skuozgLrR96mQMj+WtgGik5/d/gHasfHdm48",
+	"TPDOLRBFUjuqUOB2lrUAXqSxhmazC4y+gasXM37Z0ebD/tF4Bb966GsbB4a6euU0VMcbkdm9HcprA7eE",
+	"TvFBE5Rc0ODCxOcQcmoxWt/hmaRaxJVPcQ/jDiY2U3nhAA0lDnc7PsKaTdCaJpDJHWhzhY5WB7EdIb1L",
+	"hesV+e8WLoWqN9M2x8eSPEdTvGcDn+l5LsdvFKJeLl1xnGpmlxXtZydf7p2cfFm6Zlk6e9T/8e//y/5+",
+	"X/wKEnvO95zYW6agd46IGKWA77FGU+QEQBqNsKnzfWCiki/Q46D+nfOxhBkn4zbkZ3AT+Is2Q23mCmys",
+	"lYQ4zFZrU/Fc2MRMFSruYLZIZrAro1VU6akwpieOcchcJWG/L3zci06E9N/COzJn8RJK4Y7NbGa0mCM7",
+	"HZOhF+oMHPT7vU+6aGajU2k7JA1LhKgYT0NIUOC8fPA5rLH0QDcFt7p5NZifTODpvkoxYA/qnyGu+ULD",
+	"NFTiqCDwgIMY7aJkGs3SJcVtLQs9c580iI0HO4qNfsaVkTSdsYoEtqvZmgnMOcuDZKfSA6K0U2Hej3V7",
+	"p6jkGxD7jhvRyaq5oBeSKjJQmC6qiTFGou0Os3cb+Pkwanm7K5ak48bb1ZX5qkckj7FSQW5mvTsMfPan",
+	"9zfc7/sIdA4wBl2oMwTTlxE+EPvSEMPj8AjLMKMdsAhvCIhObojJThMMyCZTAWZCTJRyYkl6xwGnTsbx",
+	"1QZvZEtnJ8C832do97tiH26ecTW/+pcVMX0XCtudx0hvZZtzghmHr7xzKHMliP8Gn2GYGQQHmlABYHdd",
+	"Nje2sr030Ymz1Q6/OPniBWIMOVMi3yz3bI1dUvov1eePKz9BQG91XWJiSB7GnCv23Bw/ebvQ66qlKNTe",
+	"t4O73AVIc12E9mqcee1INuz+1gWMQ/nlL9HCtek0NkJo72TUot7t7bwbuzoCnstC3eAJuBu88LOxmasK",
+	"ms5C20GJQ4RLMwAC9w60gY9fx0ok25anhI5OF9o6jCJ6QB2cUvv4CH1Y1oek47Nj6gjGW+WVOweHOEFh",
+	"nkmscEAMjxwY3HQDmBmkqY7KNNVbKM8+oBjbEnZxXrAZjHhv4iLAXZi1q9EHQhYyFXY14/cuwBh+IMQG",
+	"ZqvnshhP7/kKr/iyjXx3zudRgqYgogNjPWBL0VBfpFg1NtYKi8BVBKwaTxacX0nXccxyKNY9lTAKaRc5",
+	"FlVjlAWjuSmnwpTOFKGusRpbY0olCcLN2D00yeZKT1ptm1A+N1k6Xjbf47BBzsn4Don7WyePr6As4tDC",
+	"gfhZR35tIkokdzgAMPOmA08mgNtjQ5VImA0ol2QJat6KNTn4zYFivqmNyJIrUFkyz5cjLGK0+wnFj7uG",
+	"0onBIrQiqfjw/fazk9+JF/t98cN/u9876H3MZU7oaCcpcIlsSVrbUIcwJK70Cx9750xdCjs1V8L51g76",
+	"4leu9+fPX35+z7pBBJVUyvMf2nADrMAVTEC0AokHZdtuNCa396ipZ2dlnR6wSzGWIldYZGtRAEhyJEJY",
+	"Qda4pM8zRylODnUJbuLChTEwOSmrT9+aMdC67IQz4b6ZS2vX8RT/znjXVnfUvehq2XxyNhw5BcddFuum",
+	"wXRXUVBX20/t6IZ2UrvTCqd24+Kmdod1DXwhW36xqett41XL9WhYxJVda9j9qEaaVZJaIcLaJlSnHay/",
+	"X7xwkf2UPan4iTZxTeRu74P/p5uzzVd+8CRVl9KIkf7dIrlQiZiqXEVcdHaWIn79dyCofLelhWsTOdxw",
+	"Y7ETYgdq9cLAFlMCyXMrtK2tJtqk4gYEytnKnlAqc9vtkiV/xIbsb75eKqB9/BXdk+QDOBL9anzn6g7A",
+	"pWN3g8tkx8yOw+OvdhzeTeSz1kjmjWPNgIQ+C85ZxDDJa0s9i4WUKiLhSgJYqEmVPaxKnp6AVtLY3UKX",
+	"FOH2y7OYQNps1D3Ti5n8VNp0jQH63//B7RXIW58ftE8POq489POXj8VvxP3e/R++//d/2DtD0eb5y8+h",
+	"WHufHkHdcuLTNqEahKKs3722SHQbq+0WUwMylisKXSpNE8RMjknEGmF8EzVv9378x/965XB3sHFoG/NZ",
+	"1wlkkRtUpTy7SGdzTEglPOa2AulpWKKt2jRZyAw+Y2xF+hKq+4nY/VzOOfggGupyFcphmgmyGR4BVB5c",
+	"FIbTZp1zdSDKtQwgPfOFRpi8eAaJpA5CyaJrYAbSG34UQCqpDNZ1Zf2qqa7Qv79kbYLlbivvk2XCTXTb",
+	"g+Gp7ZjaLx98Cj2dJZVnz7HL59Bj7ZdT7vqM0ih9JvzuFa8KpQsIvnT6WDOMJ+0imDvAWrrIMeKQvxa2",
+	"AE/rFH0eEktcT5u9qK47O5UHDz5e7e3sd8fdgwcfi/ZUXZfI+lIbjXD5iP1rJsFgMMkmvdCNCevVPL41",
+	"ksI2Fvb1BZdnUqcTZYs1/sdXObBicv1EqN1gWMsXr08onNHArMCIjQ4jUmqmi5nUiOSJULSYQQmamV2X",
+	"y8PNVtGonXGM4SRKW3F6nmZpsdyeXomuXlAnpUWs9sNx2dHqN9WO4c6idVlf/nqjbwc2fm3xEye0pIlo",
+	"QzCC0xSRWqCxdUir2GpzDRGqQONJbcCgHjH4QHF/yE2KCwCYAjWwD7aON9cJoyYbHSRfvD7Z3uXh2xkh",
+	"VTUvDlasp1jZwkl5mTy/ZylJ8E8YGgIVe+7fv/+ojECB5/cgABvq/zu0VEZkQw5ttKIWUo08nW0BoI9j",
+	"ICQ8/+L1yYABfOGTyskRskQclYnFLQpLyEPx+G8P33bpHwflP167fwxW/tH+2+/+8Ovu1yvPO43l5mH0",
+	"I5hnI805yBOZbfI6urf0TgEA5Vfny5t1wjRpVYk1PBCRL2pdOWAliwjJbZVkwlVY4dXRyl1R535rpCvi",
+	"Bbco+e4RZ3ZwzrhPbgyDDRrfOO53z2R+x4xrPxKX71wmX6/8FORh71ZGPrhCVspRILwR8jHH4koYGU7f",
+	"L6zKJkc+OpM5Pb0mtfDsEFqR3t3bpnIUdoGrTuEZ7+8C441ce49Vf2+6zuotrN5qWxbjjzbdd+GH/X5T",
+	"3X5esDXXVOpuKdFmudndVp1eeDORYB5szSRInkExDuNQuc4aaXG035Hr4HwJuyupoj/dFkxIK6RA2DV8",
+	"BPIQtwHbnS0IT1sDNo/UBkVOuhFKQP1Sl0ALLbaRWuGrAxAxUuDNkiYj2mgLiVzsUC3SgMKNO5UJiW9k",
+	"149z45zAtmxEkhKo0NzYwqsjoHnIN6q6xCF9O2ga/2PpRL8lYZ8RVTiIljU/hxBaa145dcNYrYPDd4sj",
+	"85JvNLLQwNx7V6Wft4UHDYxhqK79hPkVZcQG9bwacrE5Rrqaa/QTpFmsLOoNyAvBy/87yRKIPAoYMqar",
+	"1FLigCetn7RM610R2AtOSNw5RXYXFAqSTdfjUGw+7cm6H6je8W7Q/7cJzlXXc4ngYws9VnkhU10st+yO",
+	"sjHtTt05J8U2uYhu+34P32zkc5lpjhmYl8V8d6kMXykA3GD7dhmqO83cfwRGznUhnQiBVt+KKhku6MLv",
+	"7OH/lCZT+IQM7cpjgQfz39KLYxcY5tAcpu7LEW9JIHdfhIEBytjLshI66IIyGleSyCSYYoWCq8SyfSxf",
+	"E61WzFRcZconf1OhqvGbkTVlyGIZr0DG123r0XGbp66XVuSfnUEnwd/Pqd2GMd9Cca1ksu+UYOw6vVHK",
+	"KLvYZt1vCYZQ8ubtbvXwqlu51k/dPcxZ6O7EQ16T+3eZJF9wYrpLbr9ne+GVsIt0s3JX3DZjbt1l0GCD",
+	"LLnNPSvcdyL4TnzBFRBq47tFdaqf7aK5A6J4HQQAYdUkaJvUOk8KqRXtFRYgoC5lpxdcb1W9OXpv112Y",
+	"w/W+Lr/tyTu8kW5cgcoNdRPVVqrrywitxkomION9gVfom1vQqrvztkx0grffEydZEyNRWwcKJT0qyw9z",
+	"eep6L7dPxN14hQdHu4nNv+a6QTUsvlwpUahrGixVxT/iamFFbjKIkMMw3BxY01jNC1HI80hkqeZEJYmF",
+	"VvI8lRdK5KpY5JoLyVUtU1WbVmiv/+NweN3vd+G/n8B/PoX/nMB/nsDD/afD4fXDp1//utEU/xrUh1vC",
+	"R91Cxr8NJNuaWIHghUARgrRjswCh03hIMbaMMrpxiVq6fYjJWteZHZv5LiZzeL2pAxxT8zytGueq6Imz",
+	"qbnSGEiEiK4YiDmWmjG2saAv5o9umQxDPUaumBhPpCJtNh4D+OyWIg7kBo/QhZ+bbA0/wASD1BYYpEr3",
+	"eZaOYapTk44VFra0FssY0oZDSjEYDDFbv0xloHMVZi+ItjMsHB4c+GJHEGwlnvnCqGjpdLieHtdR5ord",
+	"7q6J8yUFh5hF3lVLZRFkswHzx6rCCpo4mO1H1Mu6rOedKD5l/F2MJoaB4uyZ2BNBed/t8htxnmpYqU5P",
+	"eKaOL3MzV2l1AQs2cAOB4a4Ayw9OkEitX47D/n3umKzJZa/3LNp+cEiH/cP1b7Ell2ohiOcKEoXNovnw",
+	"ijYOKOJNi5yZevuk03V4SvcPNqXZNIMrOeZwByLaV1MDi4CVujChfmFVydyOMDRBu3RXyhhme5xcJGkh",
+	"ilymGV655kqrvMlrYWZlgwKQ3CEmqjADEZMLYDBc9Pv3x2h/xn9y2m+5WfwGTJtf6A31Y3J/kNegfLdi",
+	"pXK0QFQXl7QWDzWNR2boFFcZT5uGxEjAjursgjJ7h3rlnozujkOXNHG4K0k0l2vkgTQy1VzpuzTdn0ur",
+	"Mq5ZvRGZGfr91L18S6TaKiJfc8iv3RJk+Dm9HMaBNnjdCiPeKDUH0p+lxOoSCuUEnghzgnIzQYClcAsS",
+	"Od5e1rojE9Zu4sBc5nKmCpVvtcCv/NvwqUl3KWFCDcA3TeMo8oUeO8mtdl/kC1Va4ansgkAAkhnV0JZa",
+	"7Ef9ft+tCDBo0PPwfZMlyhb8AoL7wRo3X1uXDlx7F9DDEJP7RhCtCnibN7SVm+BXNaB8T3iVAYZLFsSu",
+	"bkoCrZ6Rd8APfycs8Bks9o5J4WuClG0DtZwxXI7zySTqMiUjQVuLH//xn8R+p4bn4VKE/NHaFb7Dqkyt",
+	"QQ6DAuSU2khN+0OrEAzHWLWFkIsrhrOFlQhhx8O+1+74q/CIs28fOssMhgGtQwPxRAliFXIigsSxA0yS",
+	"yiVincGkEHcHWgtz2kFBROzJpQ+tqwT4RiLOR/abhcxVwt9lBh8HrkEO5J2pwN3W9Vtbzx1z/QSpYREL",
+	"XQzsiIJhk+su4so+HmYptcECYA6XPSI3nhXTEPmlQ2X+MUAaFkNC8HCiMhiHUZNJOk5RYl2SwNCOJczx",
+	"HP4zhv/glKEEUbzsx1RGB6fMbUAANUKiRIz0ha4JKqYL2RiTFKuOZsswSsBtrd+IWsxx1PJLjwb81Zwd",
+	"CQwISA0IpBW1LlpRa9nf0oBepbozHkz16bNgaNVfggjllZ/O/KCrPzw3q8+e2dNyPtWfjleefLry5GTl",
+	"yeOVJ79defIf+8gRgrvuJwAS3rWAaSVfbkPYNlaMR07lv6BE79QVJ21PfAEHCk5TSXgJz1ICKcOXbWed",
+	"rjgKhbzVF26HHr3eTufPtaux2ozvRBX0tQIBDFJJ6bBFcPD9udoZ6WlXUOu6TNIEbIe7RAVG/Luukkew",
+	"WVsrlLUqGZvxxQLIkQrCiHMa8uaVM48q6Ynh5lfm2nSbIf2Gp2KxSJPViF/ZnRx3n3797Sdvu+Gfh7v8",
+	"uX/wttHG+IVuTvpDiBhMRAFLbCRU76In4tnF3nPg7Av+3z/M57Ov45pNlPX0NRbR/0P3//j1t/vR/TXj",
+	"+VLmqdRj9QKuix3zxr/CMMr9PfvHgzji2tjUmpgs9DhMN/M37dnjgQAjs4jn5krlUL7Stq87AOXV/+H7",
+	"mbxuX0fiejRLdeeP4326b/FPbMbOZJZVsono1h3qSijKEXdB1ykIC6LNXMVM6Hbf2+/1e/1O2L34tRjv",
+	"//D9dSPw37Z178f7W764Ji+0djxcmdV+C5tuIuovS45QC6HFEkHElUCKKvG4KcOfeVIlorahVmEoF8yl",
+	"tcCwqtmSm65yHt0r+pD/eorf09jLYps/wUW3HuvvNhF+74q6t1Wt8PUJx0k6cVEM86b9/9VjzAfs//B9",
+	"e4L2QlBeON2vs8f/2PX+wZaagPKD5SMDPFSJ3XQxityYIqjPxLgLO45n+5XcxvUc0uMW8U2gVTevPVys",
+	"3/3q8Xdk7y6N5E7D8FX/ySxzB8nc26ZrNy3ineHHlQADK1Jhrsos9hK3VozNTFlGiNzKVxMIDMwcb45G",
+	"dGS7mvhdPULhlm6AFaiLKlsGJYXE9dMVqWF3gK9q32hhmMH9wG860LtazPq5wtLWcIFSSGWDvz2wrFzW",
+	"OPu2p25l0ysNrU7nBovVyoFevSVTnRYp5JYA/DKVtB0bXaR6keqLWLRP4GkYKxKOKLwcuSGiRP5++1vS",
+	"N/nMN1MhmKDJ2rxuESh2G0IKp729Ea+6tzcoA9UudtjaOym6swYk0luLrkJMr+3ry20GCv6M0+8rr0WC",
+	"nEmi72PMSxwmUBJuVRugH/zfBoH01vfjTxqMvg3Td/GowTY3EdJXmPl/InWSJgxMsQsRQQEbtSYnGOeh",
+	"HKbAeGqMXYfzTbbcjc0wBAM4Qtf4H2bymmECCM4AcijzNVaMTOYXyhYCXyl9k4XMGAsBk2uxNUFY5Qud",
+	"oGUntWLsViuU8BidG7SHUnXYyUpvikbhAbKjfI/Yh32TzuekvNA1LeBaPxJqNi+WYbZEYxrbbCTPwVq5",
+	"2te//c/f/er0yXcloOD4TXcss/ECC2eXiWorgm3T6HadvgfBuOlYfOVfrB+LsonKPNdShqe7yBMyb8P6",
+	"k9KYr/lcSVt0ySZsmYBsD6wD13/s9x7E4se//3/AX8s/HsT8cyWZBlPghhqNAiRj1LFx0UTIVoT2cTZT",
+	"aSKFKoTMepH4695Qn0xzM5OFuch74lPx8OGhaB/0+wcdcbD/oNNzhgo3Nuhwfw+U/x/+lWzicqhX7ReB",
+	"ceIaDBJs5Zfj3FjrSjwVRmTmoo1/DfXZ445Hr4fHlWl0IoFlGXC+9D0kuF9pcfb4iLPU5VCX9GQmjn2g",
+	"RxIpjqAFvA2Ez6gMo22gfljsqWFkcJ9sr45Uwqtve64T5lEE3RJQtcvI9xYYu5jB2OQ5Bswr4YL7BeL5",
+	"uqJpQ732CAk5M+ioNhbT9wkvT5sKywEHLeC2SC2mMps0sameeILLQbolIQZhnFF5KK1ItV+OUfkY3EuZ",
+	"NSsZWpP0GjOHbIlLA3g6SJwjMxnNlNSxaNc9NuRH6QzElzJvL4Fs/v0ffvjXH77/7v/7/Xd/bB/823/v",
+	"ROLf/jstC3pYYDqZJroRQDYQiazhdWRndZhC3IWhLvcvEmmhclxW3CApHBqOyBXcFO1S6XYL82//ncph",
+	"AOQiM2xli3SGrUCRGG00TQrydp+aXKxOk4/SULuzhCe5HCkQN7qVrrQn8bPHVZgbTcn+zB/oX/z3Af7v",
+	"0j9f8t/03OL/MkpOZUu2FLY9F/uMhuD/fqYvz77Ji7+pPVv5+6Dho/9Ye7by98pHlQcMyuP/fgXzejl5",
+	"gbMKOe/LuZe/d4L+dVyhpGjBPCFiduI08kmaZU3FNUg1tgAEtAUagoO2ehu1qjynyRFfd1dXP4gqXW+8",
+	"l3h1blPjZ9MSQbTfJFVZUsZjl9HdvG7vdcFqgdYKEbUc726+DrRSCUVAuouvMJjk3ny5tKV2IZDE/dxX",
+	"2hT8JaSyX6gEbOb4Mo2iinEl4mDWA0Ft01p5jFhkBlQcsyc4Vk7cHwgJdyBnzl2Zskm42IxWIlEXuYIx",
+	"w7dKJVBbEzbgEYC65gi+audSW5gCxQPi/QS79bDf8SFypTYU2DAOoiaiXCU0D8dyO41zN3CM9wPrsPHL",
+	"mzPvueXVY4hxLONFnhbLM5gJg4crmav8eFFMV+k4hscmT/+EktFAfIrvku47xghHF1MpMBTRDiqBkpGI",
+	"2RqECO3gSoorUc7wBgbHclgE3lJUyDY1EIEZX3fdbLsUkshYbLgVqFvhkEotYloU89bbt+h1npjVKWH/",
+	"EJCnckLytWEAKAwe73x5bnJ2xTRgIlsMJrFDLSs/r5SUjsiRQ3VUWeAMJUAhx2M1L6Qeq6EmGG2qYmMV",
+	"rJLTJwmLk5qKxDwzBQgWWG4nLINj8eQt9BttruDW+PyYQ46xSakrYbdDPdQfffQkAEsWVi4tRfOilNv7",
+	"6CNx7McnQKc0szkCsQdzQcfeJL1Y5CoRY9j2PJUeWzn3EH1WwLHk4Jb54jxL7VQl4mKRJhITBLCtct1p",
+	"cWBuBVtcqPTHBUipHDUOT1ggPHv5CrnYUM9zNVaJwjadwVQrj+3MSB4e8ZmDdhnNmS2qVCVuqGlDubgu",
+	"r3Kp4+RqrqSLbgfBzFnDYlzdv/orcWL0pdL4bKi7BFJH1xRDDORKWC3fqNEYe32duqceaasdk4I6EN6I",
+	"FQODF0JmV7hheVoUHkeLxEx1LRHi26bXvpylzESSXiDVCtGOD/oHH3f797v9g9f9Twb9/qDf75Hl6W/j",
+	"zkC8Mra4yNXZ58/dKZmloFEhspeNhDXQDN1r+ELCKF+2hPWagALO0f2JRVXdj0ziJZBmhcp70NIxfW6V",
+	"LjBFgKL649ccN/a3MTSYoe45RoQgv0CWS7o96H3cOcJ1EZmScw9CFh/cHzx4NPi4H3eCDBQeM1KRzwwY",
+	"YLKFljMs/Sf4+MF2IXjZuUmWkTjs90X8zULlywFsYky/4YMy7qQH212a1Cxh6NAyTfHObAOrcRG+EYWL",
+	"2w7uPfjDBPF72xOnhvI84PzO50onXVQzS7B3yWQOnAN2BOPY/fCVSqhVsmaQo4uvUCviNIn3oKJeTBkU",
+	"8EkiC3lObgUzt1htWoiDPz64L7piH3aet32cpUoXkfhreSnPkMOKVBMgacRbXkzVzG05LgnUb4ZVQyaZ",
+	"JkoOECkH8YQkb3pqRYzSQexLJjJGX1lZDoYE75WOHfeyNcARQDQMrcHcaFky2zWtmYx1QQtJGRqeV2Kt",
+	"6aiCVBUB4SqV0FcdMcVdKYckixin+hmuN53mSaphZs+ePHnSffjgUJCpyfaIIzBVIsC/+Ex+hnWONH6z",
+	"ZIqmWCzcIg9njyGLMGoKFsAfK9EBjl1HIFKKqqmMiiC6sPLcmKKDowdTV+wsIBLPY6pVhjNiiUqQPOFO",
+	"jeALh06KhfDHBnFrIFDcijt42k99WCc3BYvEFRgliPdZhoSGlgSyZcD6jQleDmMlsDdH5Xhd5jBah1CF",
+	"PDkxY7rW/ZqRLHCujph6rbBTs6CGKGcqvdAmV24yiBeVGPwWZhlx9GgmC5ULrndnhUwS/oK2Hpm7mQSS",
+	"hY2cTGAjvrNs5KxTeOO7opq5QkoqecdA7IvCiI8PxfHZybNnIlNFoXIbMTsnBtkDUWoE/xnAf7pxRFOS",
+	"OapJbHygT4G+8NuyFl7JqsCm8IVOsRYWtMypodBakB0qc8Xbn7i7DpxcdqiPRZbagqlRanGRmytPaZQV",
+	"1Y5/++Q1Ftwn7gcDdk/4xo47WKAe9xW571xewMqB0SjVgkppLwew2DlR5YAVm1i04V1h0z+pIxIocUDo",
+	"I63og1xRF9WNDh4zWMjxIrcm56jkOTAEs7DYPYijWl0XI36lkrFJV0VukVnC250oMMlhHhFedtblQ+HL",
+	"+OYRzYJOBKckFWpmo2p35WZ9pq6LE3pINTPiqbSjmckhNUmU7/1O2hfwsNMTv1dq7lbK0wPP9TeVXq6m",
+	"aYYUWDYqMFFlgRU3cC1djDXmrsTBRnboCOLnQasDtMWDfRTXn6vbXqgjx0rbcWXvWbRBCuYjjUYyCwtt",
+	"xNxkGcmR0AeeuGP3c2qFmctvIHC1DO6OX8kL5VbsCKmnmDJ5pWPlgNqIg9uFwnhv/Bdp3JQAyBuIBXIP",
+	"+32keyR6ImsfQpLmnE+ONwqWbkKtvVZzGKjZRZvU6wyjvF4K61GgNNgO8HXIljGZivzJwvOBQ/q8KolA",
+	"Y6VKFXLCcSZzFZ5k2leQb5wIRFmZLO2sJNJ5SznxTM8JQGlUuuDZEHdD3W2oSd+A3Y5FbhaFYivIDorm",
+	"MafWYRq6QsPDUDs8b+pnAAP5jv4Q3+EWfkfChRXfsWjy3VB/1+12K/8fPgr1V/FdJYv1O0EyGzF/ZthR",
+	"Fai/NJ67WtEdaIWKeJWsX3BfoXYsvhPPn704I+EsZ0r4rqLftbUh2YakoI4fkhMjWTcMaMdGYQsRD7uk",
+	"wRI3EY9iFIJ3ali6sQourKAoEKPMRAyYlGrE6HeiGs2vquyL70AltYWcTHAb4KElhEXCW41KKau2rgjQ",
+	"GMgudpuZi/ZccY4uK9UyH0/BPnbzKtx2xmTNEN9VU8NhuCg04+7BYBf2hi5QHyDVE3EaKi1AZ0ONlcxz",
+	"kykmaae6yzEmjAyELOsZeXkcls3jXDEND3VaUO0PNKQiFVY+iCqhccEa+5Z4EdJiqGGR00tsSldsK75F",
+	"dwg4Zx2NoD3xiubZJo0cagokspB0w7nl4Nw+4LRuqTEzxnMFl3cdHtyh5ioPPmUwzcnSU6bdi/amfO9O",
+	"z693yUoz5P24jMh1SOaBUZEBRTPGZ6E0UPRQNxizBivIAB99BNKt0eqjj9iXNkOPYzIjh72bN8pHGRae",
+	"8rAD5H3MiScXXJ7Zekka3nZmnEwVCkvnDfXLudLHr54JZxt0uIguI1oyvy5nDopCaTYciD987Qr+8Uqg",
+	"vmkKtpCg0qtyNWgy5znQbwxlSG0BS33s0koiMZMZ2D/gSDo9A93MlwZqzPvU/sP+/hGpSWkSIASYBdCj",
+	"Wybskd6+3xPx3lTJrJj+CcTPPaCqJf1zpoo8HVu2POyZudJynvaWcpbFQ42mJG1can/sVg1XoeOuwCfo",
+	"YnX3HTpccRc1GnYeHT54KOa5Oc/UDPSlOXkSUqP3+Omv/85iRVkS5YY6fkXPnccv1TTVFPwokYixBxuz",
+	"WYnMqJOJQggF0kxQVpakcIIhg57CQYIRffyov0+/YUoTkj+DuZPVA7IdUKzb8zfc3sFerdhiOx62hi2/",
+	"pSii4PedI+r95OxLMVZZhud3L0u1snssVuD/KP5rbLLFjB/BnugYG9zvgl0iEfPp0mLVB2gBJXUY2lTJ",
+	"ROEy4+P9jsvR4I4e7vmcQx5OKSHCeKhrhyOwKu645kgaImUjEvFcFtNBmpDCFdMgBs8SNZubQunxsvt7",
+	"tUR1goJyWDefpZaT/VA2DJceGyL7aWpdvExOuhznN8Z7TGov3PEQdqkLeR2Jqxx99ss5J2ixMhDkDclc",
+	"gZB3RMTjkDPAVZxlXW7tHJS1XMk3VkhCC2G/vhOZ2w7euVChX96Jl0MNZy4iLAw6tvQGCL25QmkzLddI",
+	"vFFLtD8cHhwAL3/Q75M1Ghj2UA99KXM6SsOWv3diVmpGacJI0hQEewEDKUxoHcgMkPBnLEGlvpCftzFh",
+	"Q4E5kJi+s5CTwcJJnfHfdNkc0n0GyStShMtnNJsyXVA5GhuQZb/BnDJmE6ey4IBry9cLXwZoHj1fQJ0n",
+	"WHkemy2BuwE+AsaJrmAhC/GgD1YeMnoelTApGLtBBkPH/WpS54UqrHiA5leLuDSdnpu11BZkh8IEy8OW",
+	"hIDTRsIuxmNlUc3B/YlY26Z6Pg5N45uFKaS7FvmwspnFlVF68vqpSHI5KYYa/6ebqmLSBZeOnKfdXBYK",
+	"F6tLX9tu/2PRpvCoMhyDpfNUX4AeG8MSPyfDAHM8DpMupsoSJg6eCL6DrDcMXaWJypYobnQGYUNdbg4v",
+	"PNojKL6Z/gl0/uC1UzWTqaYQZWSFQ82LaNFLHZESCrQyNgtdqKT+vVXQDe2pFQtdpBmH7BBlpJZt7OCO",
+	"YVNA+f0r9CchVyaQFHiK/1RHV7+hZ9y2U+h6Q/1Kso8KX8d/MRng8eTSH/GpKvJl93hSqDymErwYrlZm",
+	"bNuhdiomrTTvGR1SRzH+bWdkI4mBZknfc2a/dKyvcvA6yKnIcoqiEhiInMmlJ479klcxNNJAdIBeef1x",
+	"BfE8YE018dotA57cucrh0oZxD8S5mqY6EVpwGACcV6IcdF8QnpHmU5UW7sCTZRB4/oXSHBg0NolyJ46s",
+	"/kLpxaxkNbUIGc7k0wyrjD2RfViCR1IHtkPRdtKygQMEPV0oEv9ZrOnyOEzeAcbr/xrqqrEZ20kLNpeK",
+	"mZxzOmG28JIvC31p4PaAEXlMAR+1YcOow//0TyJ2cT1wn+7vXZdP3ROIc/jxP/3TUOPDA3q6XG3hP/Iv",
+	"5VP35I8HwbMDdEVz/IT//iA+8vFTh/OMf3lqFvkrzO18UD5LL9Wr5/FRaR2lHN14v3tg+R1Irt0/QOPm",
+	"fvd+5el9fHpQffeA3j3tHtp4qP3j00N8fNjdD18+3KeG+9dhu/3r+Ij4vK0BFvE7XN18xTHPbZTFzuGN",
+	"mvJOyx9WP4+PfBjHXLGeG//5n7m1F4usSOcZFEOI//w9P3ycXqaJilnzuEpzJiEUjsmfiaeXjgFVD8Gz",
+	"8xSqNDD84MKqiscATod1Zk8Lu1PA69DxK2/6oCdDzbN0L9BfTy6VLk6gYXh2Av4UOKlxZ7DigpiiPx8I",
+	"fqjJD+Z8M6VwNJZaqBmFipLugTpYhUPYq7QAKf2SazDP4NKuuBXwNZkkfMiwCUQSkt6CfZ5LPZ56bzNm",
+	"3GTmYojJKLkcu5rHeMPu9w56fap8FTAfuu06qB68dqgUIpaMPZtPQLihP0opiLYdqu5hVnIsMB5AsCDO",
+	"hTUCCRFmgvzKxRzG2A1zsjIIQlAMBDRCLcYQFZ1PRrlNIOcLxoKXkUqYXCJRSkSdyt4FjVADMeDLiaBq",
+	"ILTOCbcx6Z4RR0rAt5Ul4Nxbx5HdQjA0r8VQU5aYMSpNu7UAEh8Ira4cq4QOZgpdg0e1S0BYpSy+i/zf",
+	"QSrAzsRVDAq34BUgFWclbgJSgaGEWCqyCUmlOonG0ZE3sjpEGiHWKLQeIJQrlQcFZRFThp3W9yxHpQFh",
+	"4OuCAxMcxXDdflesIcSYjalRVzjGp93E3yykLsJ9pwqNFO/mwiAgFDXLzDes3tMrdnFe8O/g1uHVWmQg",
+	"2MVu0H7RyzLulUbGJs8pFiFmOkKvKwfUkZM2xhXjz5y/Klx1ohWKapSZpxRad1ozJ8m4dUBHt4d6xDgW",
+	"uMu1eHbypTC5ODn5kuIHwvVdC5MjtLlio3xaVCkMyDxFLwn0iKtNMTRE7iKXV4FA54YJvM0dLF6FMsJi",
+	"sxbpLVZudm2Oh2aHQ4d9P1jmkxJg5qIwkFLdDy3xIVFR7OVcpnD+oK0H/T7F06AODq+AlUJm6Rs1gJZK",
+	"aKE//7P4xLls2QnppMs2u4/KbZSUvpOTRbLTc/wVGs/kElYGzyGM3XPPcuPJAtKAlAS9NNdA8dVScS/M",
+	"FVQ61H9HFBnh7JCtVTYUgLIC6iNe8+rlGTtjF9ruje0l6BAUaXG60Cf20t2LMBcYv6w5mSj8xPH6dlyo",
+	"64LaAU00qgfLWF+JpdOr9R6XjnmKUQ3akpapHUe9i8ZaMvK6UkdGnCYdrkk1a1a40Ae7pfpKYY/DVmgI",
+	"aHWO3O1R16lEoFLNcNqNchEKRINQ+iExp4e1rmJyL7tIgxUZScQEsNb0TUV6orUqBageDgHNf6tyFanL",
+	"7hLEKRhLVhI8OLiTEXIfNtdyBNlAxPLcXKqRtMvZvDAkvgIW6FX4yNG2WRQ2TdSIQAR5jxwLH7nK1TGB",
+	"HpGNZlE4768LGEFK/CrNVRds5bJIzzO1ch+ioojXIFnb+IqCdsyERVgr2l4oWNX6OgHlhprfVDZofWCv",
+	"Q8MmibtcTjdBVRXvPFOIea4oNhw/Ee3fGjdU1y2XPQmDY5zUAY2MDVcAxQacxfMpSjleoMeZgKDvwjyB",
+	"jcZPwFAZl4zOt59a4VwM93v7vb7n4vd7/d79Tk98BjaM1AqJCzmgexMiBqjKrdMPYvr1D68jMcSUvGHr",
+	"a7hpy1d90RAKcQxJ00VyjNAyhVI+CEDP9FOTj1Uvk7YYhQ7HGCNCYqPVy8lA/OFbCAd/G4lvaQyu/7df",
+	"+zXA2+OMja3AagicDlrJkF9bti5opyoRCDbcM3Q27vf6sLIzEbsJDTDsIqbzAVQtYoTtdVe+xGgpSCuA",
+	"L0DNt2amgmJ+PvU4RguvYIP+gmJnVTYR7ZVXB6IPnn1pK1M66B/0u/sHQJrE23viM8Pahbv/QdalG4Qs",
+	"rt4fERhhfRJaYapkeOTL8SLXxjmDm2JKl0usrpEpxRyJhgGlS/J+1gQoDAQYyyxzgUrOdwb6ym+fvIam",
+	"/e32bZq8jemNFcuoiwcKtOAj77tk7unsKzR41L2PvIv1Bi8zpXmJBv8vDWi1c7nOBwvNrHikuZHKpGh/",
+	"atFWe9/SP0awGAMWbHCYEp20OEAgtKuagBA4Wfe+Lf94uxeEHOydy2I8jQfCwhrJzMtTJMmEYlRExiwX",
+	"XQ5bUo1EwO5Jze2WMZi2NAAGYnsY7QkgjClVDeKbwq35CA3W8AIeUihhGvx7RLsNj/galDqJyMnq7mgP",
+	"FEPZewgJHdNfIJw3SPcs1DvplaUo0Im8n3ri3C7tLSRkju8kyZair4urdKw6pHM7SQ0vDwrpQ9my7Rxj",
+	"h3vcgwsst7UbYp6bWWpVUin1IcW87ipMFNw2CcyGOHDFWeg7OXJhBfdszQ/gxpvmJCMiWXsxEaDgXc4V",
+	"jcAVhZGFSFIrKftIr6YmsyI2cwg32tksCV6GbsWZsQ4BnGQrdOIKwpax4I9iqHOJQP8EhQhpsQYTQnxQ",
+	"HDEqphJmukv0fsCR5xSGHJrIlUVDTzuhXFEI/LZRaEDFUJUUj3cMe67vFQKLLKOh21m8cPhDgnQH/2tb",
+	"avYbUi4QYqZcyEs3GuLsc5lbREjECRCauWi7BQooxSlv8B4s78nZl+SiRL8ZkBZyagyo04W7OdCe7II/",
+	"iSn7oFqpHVUGjltOP8FGEzVOZ6gGzWbS+ZPhqsyWJOiizavZyoUiRmnF0MaZ3RI1VxinZzSHNCxV0Rk0",
+	"cUQuKIuRpEEcIQb/xuQ1uPKxonhZGl0mRMBnCR7NnqjHurKKYoP4SiS2OwjbwzOHxIbCbUVJJiHTpWjs",
+	"nDPiFH8ncGKEJCnbOtUsyPpo/PNluUYUye/SHfxVWAvu2hAL5ZI6wi/uUZy9aPPFwVkmpCV1gr7LK4Dl",
+	"BuhepAkJY3iFzI1NS8d4EMrpUh5EG2VGf10rjXeRRwxz+RK8CJB21svSsdKsCx3Pgal3D3r9yAX/wvVg",
+	"U05zev7s5MlnZ08or40/hLw1qtTQKj9vRa1FnnGOmx3s7V1dXfUk/twz+cUef2v3uEX8BgvYF5mqpr4R",
+	"WifVIW/t9/hF9gm1Bi0U1Al3c4pZgi5YBv59oZoAMpmsDwCDHWKI6QCRv4zM++ml6onP0LTkAmggJ9dT",
+	"+bOkNWj9VhW/465qMDQHfYR45Frz8M8wcObvOJuSeOJNGZzUBeUJ1uaBw4TVeNDvr2vGj2vvGZti8K6o",
+	"pFi2Bn/4GiE+ZjJfAv4GXMwKQRYLeYF57n7mlkoqu9CjtYv8KsfsFrWwVMZJXTvqFZQlVl/fI3pFibSg",
+	"KACjQVjQqrgy+Rs2OTmFpMgXlgtVrOzJCx7ZjXuC9pl5JtPabtTTWFcWnnt4H0sfLNvMz2PtJoQBX2t3",
+	"AjRcp9V6OSnQc0BIOF+kIOljFvUWZM/N7Ub2bpA7LHQ49Pu9fT/8SPzH4xfP38f6vw6lyU1LT1F4W/IY",
+	"pSvs11+sLjOUlgQDHhd5jhN80L8/1CX2UH1XyC0Vc5CMpEy7OGBnvq8Uc3/xssJ0OuFgCwcc5ipzJoXE",
+	"oTe4Qk80SBxJuxJG0SkjPMqWLQrfBl2IZGgIHI1DrU2RjpVlOA9wlqLuAeRh4yBCFQblQxUikYI7YBkx",
+	"XAkJ3Jm8WHP2T2lX3iM7PkXjtbK2iV6xe1EYWs9b0yd8df/mr85oab/Q8lKmaIXZSNrlyDeQ9eX+Hurr",
+	"awn7o48wfX7w0UcrbncwtVHEL4q8x9AOiNU2Al1S2YIyiSIhC9JgvFsJvCBgC6J46lhQHQkI9MNoDZf5",
+	"nKTJABvEQHxKwAuqGaFkxSmoRMiUjqGDdyDdHAkPzA4jYECxc+DhkzRxvbO2D0+Huk3WRZxw7I9tmnTC",
+	"RGiQT30cH2b0GlAXtcqbqPUMQ/xxkcKiKxYLXcGV1EK90lWSG7RoBq1oS0Jl5Ie3UXNrwQpUmgwgHj4+",
+	"bIB02Nhamqxrq6mG1LrGkCrqDTUibew3IG18/R4PP+7Wc7P2rgLqw1N/uM2p/1QmDvkDP9m/+ZMvtOTs",
+	"I5XQR1vwiacmP0+TRCEOyOHBo5u/eG3MC6mXPDr7M/Exz7noqNTLscFNEpx8MLEiFQbsjfJRAF9kJZrf",
+	"1wtw/AtR62apLhkh/bwVJ6xih9zEGSkyqcYUTZ64nPeKNoiJwBwez6HEWpwvhxoS4oMfe+Ipp22Ozew8",
+	"1ew4P/7s8ZGIQbJDYSHVbEInrleYeKi9WT2iYo9GV0fQE5CUaLniTpmfMfaQEaJtlYLgZ8qsbQkfveIX",
+	"jMxVgXDVGSDaomhIXh3qajqptGWya2Om6pGz6/t8zaGuJoVSaRCcc6Vp8Eb0ypxMzO7HLlD0GmruoEyk",
+	"XOHjMGXa0O3YeKXq1nZsJwQ8Xcc0y/pdd9cmmTrutElfgWO7Jit1VNa1WRbz2K5RX88EGqye6Scyz1Jl",
+	"i+oBiMpjg3VLGsYAB6wygG0AfVf7fy6Lht7V9Q29F+YO+n7lctHX9bJ6L/v6XQ/6ARzWwY13dNS8QeXp",
+	"2SvToFvv9UZHAoMj3HSlAwQI2lV97doPl/udX+4nVMYhtWBjDO5uvn3X3d3hjeuQ/G+6ytGF+h7uc8wp",
+	"oAydCbibn5HnxWNQGT1WAcaC0hcpg8skBCZKT0Zs5+SYvNRyznquXEtrtF5cwtXb54YjRlEFj3+C87VO",
+	"XKaaxL/wI9U/vPmLz0zxFItC/IWewWPaCiLRtLCE5MYB5BiK6Gp+vu/TeWvrw0qeQO2MuuQ40BCcN54B",
+	"HUsYAafYYx4512pF8ZyzAELtI7UhyNWmk7lGx/8lHM+bFFpcJvvhiP4CjmhAemVUfHAi+XBtq+vWTuiG",
+	"E1kCXcA05sa+k1WQitVYDs3Hdyk7tPDI00HwiKtp5BHATZ5eYI2LIGabb1KH8RqJLNWUci9SzGuNXTMj",
+	"M4GEavjGN+SvWVeqBsOhCvDwp9rJJT1xyq3XhoGLkxAU+dL/BRolhpw48EQO/2i7wDFsa6gRmx5DHoxW",
+	"3hxeQAgqJ5BjzQ7UBth5hmaCDvMjvzyccR3PyRYw8mFY1CFHd5lJEM7CCuNQY3Co9GFUPqIp8pnLbrYl",
+	"IBDaO12EKqbO2cVc5Vbh5NEU5oYGXlxbb6YCRMNrPAA/BdeRq/xOQdXYm8kc0ocbBytKQk4wvqcYanJN",
+	"SLQuUIaLcsWCe+Klq8TNjhZm/HSipjLVmBF1zuOHOP7D/qOIkuaYtEepHfHXnNp+ihl17cODAw4LO+ek",
+	"SpbwStADf8FCe0cecHSoafjPTn4nXuz3odbAwUEnYpNGgDMK2KFc5QquJY4Iwaz1EVNVPKAxEMVRsWDc",
+	"SXzqSUxwPi+XR+CPLcINxEzHduQhCkdaXcUDIQuRKWmdcRy/YYQ/Pgcyg8dLagdSotwvPq0lHngHwAGg",
+	"LZtJ6UeiQso0FAxgcM3CKcjgAFUn4YaAWbFWMLiza6rDo0g1lauwI0hpD6dRQbgNXoxp+QiAlHcJwk0i",
+	"t0Udl9/GI6CewHw2QvTokdKJHWmlkhEFNsUDngwMt8IGYAHgQxelB9ChHCcCw5umF1P4m/ZTyxxdHPAL",
+	"dgRzwa+hwyPO9hMOq4rGwiOIhBRWgYhRcCEuh5tyNV1SOBXF/CKEXsxflQE9uMidJkmHmPoTd1HsLOsE",
+	"GBS/V1D8bUfpCK/oT02y3EIw4qA3usuwuj0MkAsPtZ7fx7uRPlOtwQF1QADYLR/UJw5g2Z7fpxQfzcWG",
+	"qfKHuEz5fgKekssx3EVWzYvFDAWp7SQzv5henqriaRf5Qr1dkQz3fxrFLSw1yBki0N5zM15TmeqVLKbu",
+	"oLuPIxHXRA0sRludYrQpXOB/MKm0v4VUemL0JONizIf7W4zplVxmRiavjXku8wtF3z3YZgHsYk6RwS9U",
+	"ksrXyzl9fHCwzcccTQWC7BNdgDf6L1TufkI3UFhqRnNFlEhIJ8c6mg7k8W/G7+Z3IuEbsOJ6c32xlUZ8",
+	"C6sVAhxnBkNhY+zMXl7EPLNXn/1WpDN5oTZpt68yU7z67LfvU7/FMezxKjSYuc9TLcl2uE1AEc7yg0b7",
+	"s58sIJxAlY0EUdF7tzA5Kn8PR+qsTOT1kqsvPTKT+RsEzuFSCZhaRzPnLIBJmlBK2DnmblAoe65smiwk",
+	"JAJrlQnMJiQVC4+FTxCVFGeJEbRDTXnLrn1f4yHAOITW2XN20/E++/InON728uLX17eKEPxwoH+hB/rs",
+	"y5/mQJcZXNtZqDYaip+tFCuBOYXZ+g7+PKiSwhNG7ZQiFWWp0BKmIp3m8pQLl7klZCHi8nlcKpyoEDr1",
+	"FLJP64BwPVFmRDPOTL3uidRLVxyE83CpnEURYYoQA3BCg7JYIC4aM4WjSin1oWZUctA1iTW5PDPKNlLa",
+	"Y/9niHVMyc2VsnMqGWpSWk1OjExIci30ROiCIPArrDlXVpPhfhB8b6gP+4/WK6LBorwj37qlYlnuZmvQ",
+	"7z16ELWYaHAEKYz0q26/f3hQjVT9Q7/XP3gQwX8PH36NHnpOBcSiUuV391e/279//+u3X2+tXob59jvo",
+	"l3fneQgHQF2s88CzYXLugawjimLmCg95ovJe64Mq+EEVfO+RCmGeJkYZuwJWYchhwHu2vOo2XG0VJPG7",
+	"cL+cguJqA5cnoyw4rwCHMXihlaCSfWwDxOaV/iBCCF3vtGHwBJZ1qeIzmzXBoq41wUhcpFpFnMQ5m8tc",
+	"uSqEhILpzUZAggMRU87pGNKfEU0ffqTkWKXHyqW3sk0U2i6Ln7Sfnb3ce/bkROw/7B88GOof/tvD3v5+",
+	"74D8KSLJ00lB1w1nYFoXWMg+Cld8K0AnR8BFEsKTcjXLJRPtEiQk5vcAG/kM3kDD6pTgbFYus1O/+eoX",
+	"HOFxWiHRdZEeuLGpBZPhB0H952ZkAWE5YZ0olwRB4gDyynOBO46o9qzN5ElvnkzeQ7THa4/pTd0Eagmb",
+	"th4/5eIIqLToWqGbgZO72drnLNal/hz5bMQosA1ikjMyBaf/RwxTCO2UtWA9yyzrR98TdmyossQ3C6oj",
+	"6GAbiSPhN7aQRWqLdBwx6i20a80Ca1/gEzJQQs4kuphR3l5X+SPyygw27p2qOOdMyVLud6lhvgKGaGs5",
+	"UxHnaVNytnNZZfL8nhV/MlpFsI4S+DzbPSqlYqyZFFcyp7ibGq+m15lDDfXZ7467UKuU1SiwpbiyaFxn",
+	"wrvv0ZNacfFjabRNRo5TJJJXj5/+VCyWqf6dbZl8iD7w1J+dp76uFFoJS62+a1bKLtIifnIHYuILc4km",
+	"xeBuqMeWiMIIqAeRm0vFDDhX5AiNiQXSxK3DW2EWSs5Uz1ex5Euq68yhJ46xaeRhbhwEEc/2CUx9hXCR",
+	"mJ3dsnRZQyiGtyQYjSCTFSsIwi6IzOgLla/ODJM9HpVFaeDBJMU6L21XlwWbp/LNZcnL3IA9p+SRuSoW",
+	"uS4XsjAUs6OuOhBRRD8G4YcIYaTNFXFoy1dZarkAFQGPMUa9KwDppim1wLzF3Oh0XI4BQl5gBfk6I2By",
+	"/6uNhVWYfAR3ILF496bLWvYZvFiHhhroOsLtUiZm100eciUqOJj4flirlETnTIlhi771CzdsDYRdjKeu",
+	"zg3eDExgMEJHXkONm4DVcSkB7J4NLyaP+RSejXLKnWZZG1bzdmL2zxS94I5Ua9DiVWpVQhXIbUC3eaWg",
+	"pkocNCgKFtUiyRBitEOYAq3bz2RDWhujQKNSyQe70Ae70E8Qmkunr2RR7x6du+GSLxnZe4uSD3ipu+U0",
+	"VRwpjOmUQYwzqdOJsgVXQkTxhxE9o6HGdHjQDqpqAT5C3UCwanBEGstUYTEzVxqOLoehpujPKaf6sx5A",
+	"tzgWWcbXeuJT4HfKVqq/lSXlh3r1dmbouKA2WvmLcRXR2NTFcXWYHup7EO0qjkDsX+dip9wKq1IcajnU",
+	"vAP4Of4SdzYmlp6VO/6LtAD58a3Lo3tdWdwP2sovIKM+IPWmZIK7UVGid9ZDjpuF2kEI+wEwkhZKZqWk",
+	"VcyltYj/h1KNKKtfBDJx7PpzOkpZfzKUJY+chiOhnp7MrHECqS25fSjBQ+0fEj+9mO+IX+XCh697qwgw",
+	"KcSFdb1Ds99IFqdVzjXXnKy/8osuGRuxnNnCFq6oerBGpDkRojjsiUq8CZuz3kkwLxkeRbMTjkmXW/Fz",
+	"OubabW6pI/DjGhQlTT7USYq3eiLkGGOGuZDhUVlkEfQ2pD74ylXWgFdx178iJWWBFdcrfJXVTOKaNGFa",
+	"SF+BIT1Ps7QAaPMKS6dw9wamLuo83aGY2mKo4XPL+RkNrLzUTjxLl+EeuQaOhFYpXm4O/TG8pcjzDosa",
+	"tM5HcqhLdbXw3aG+NkU8Zf6GsXRhEFz0udE9Dsf+L1/HwaMOT3ru1LSiFtOBf1FmOEeiz9agxSUvulOT",
+	"W9U9l0Wh8mX3Yagy4YgdH0iOwmIv4zxFjEcxU8UO2pFnsz9TELfv/8Zb+YOm9EFT+mnEjneXNjYoRxWs",
+	"1vcQ4En6UdhLmVLcEA+GWD5F3MSKQVb+sjLaX6RsHw5xk3hfWfgPEv7Pf9S+bC713yjtb0hV2DIqcxtJ",
+	"P6jyt/GciWclVD8Kq0Pd7L108H+I2k9ldEFwDTvqHPk6/qC9L707WGP5MbtgxK0piJLt2qA4udPXgncd",
+	"ozW1DPVguRGrmUHNr7JkUSS0GWoXw9ephrikXO4nrlamHnh8zqHe7/d/+H4CVLinzQxdmdDErx4L/KWN",
+	"P4kf//GfBP/cce8hBglIP4pwyof6u189/k78+J//l1rKYynj9MJFHhUmUzk8xlp2ESkQQ+0iU3/4l4O+",
+	"+JVLqxVfnIknr47F2VfdTw4/Fi+wdfFJv99/HHrCqvt4tJrdSsPCQoM5GnNcEjKaTeR4nKskJWsTPnbZ",
+	"sA6j4bgsHIdLq43IjXfvOwcQ6B7kWjluTDeuJhp7Kb1SIMPnHQ+1LIB4yesMzF7U848rjZucM4YCzxqi",
+	"HF+BMnZUS1tmhcByBaKVZGe6c6CCWhCW1ZR6XWHPLqKKhpAW9IGyVBh/SXmeqF9SZjDNGEx/pM2GjUVD",
+	"DS9Jh/WJ++LSW3HwrvKKzKlyfpFLbSkT2EWkhdDwj9hRJLyfCFr0pcvJKcf5lqwi8bkdaVOM3G9YF4Zn",
+	"WKamo89Ii9WlKhsJk7vLJmpRyfwuIMxNUsgCBw8XVgOqbHYQLObIKEjlhz4rZw53dRQcGKzxL4t4Q85t",
+	"yOb/UpS6ANysNWgd9A8+7vbvd/sHr/f7gz78v7+Fmybkihj+/CbVpMjpItUL0PUin7Z7cvJld4boo7Ww",
+	"6MP+o+2DosPF/Jk0tnAItMPJNiKX45LCLArgiB/UuQ/q3E8SR4h21uboMtF+dvLl3snJl50tRU0vtt2c",
+	"/rO2mhN9t8cs/D1lzQaBJHjSCWsG2Hwtv85X8yy4CAjLT0OtzVVnIOTM8E3nQh78DV9QjgxeIPitL1zO",
+	"cxtqrNe0xeVGgie87G5HLsuO+LOlibFiXsSHKEESYwnAwOSVTAvvXcM4ERTQWHyzKkSioYmNUj3CUiQx",
+	"SGkaLd1lqEc5Cets9SZLVC6wtP1XLhCl0j5Ai9AtDIWPp2aRU8mrUNJLLbfDZXxk4XYCJHONL/h6XeKw",
+	"f+gK+2CET64wtJtqyLjiSZuiCLlC3+7XsCea1s3oruvhEXaBZl29TWaGolpPn56I+/fvPzrCOCTcXHlu",
+	"lS7WoYLKYnfs0feOOOi2YhPwYLn1H8wVv4jwyequwFGVTJZ3aqu46Qq523TSYxsUIVyTtRpHpMiFxsNy",
+	"HSaGyu7XL5fYValbuV7g6GK53qH2Nb22vDFB6bGGeaV4/uzFGSiniq6PAsBs3PAS25iQ+plxL7jxozvq",
+	"cKh9zDs5XNbrNCU/fJdEzpCrvpO2wqx30NJpkUtkwiuKy36puDRnej5oyNj8ZJeEzaZF+ZC6+UFT+aCp",
+	"bHO9fL6QIP8sN/DZO83h3L7a7B1cMbsVuaWa2PUKt4hDHdS3ZRBBzJxBq7Z7EaPjv6HlTJu8XkMd3lxN",
+	"WhHlKDVrRnB1dSIK2SumrggVR87A+MqZIFvBATZwFXc1DXVwN1HGDL2WWm5bJZwpZnIKsigAaXAgymq2",
+	"Q12a/xrvNmeyhInhgMC054rI2r3hot+/P9b4PyooYMtqGS9yZVl74pghEvejPpTLdHlahIO42935KdLZ",
+	"z3x/Up9Nl+muF2a9lXSllTWoCQ1N9g8PoM2vN13p73RF49r/7Pc0j2LzZV07We6ErjthH+7tD/f2T3dv",
+	"r9xXwb2T5s589l7uci74u50tseLj3t2ymFH9lxD2OkzKwogSLWdqXUTJCx7re+Qq1MWmWBBesA+1Uu4+",
+	"0yTLyvrTNVoJs/T5ne1M7XcY4hHaPdDLDbQqxgz57ql6vydeGVtQRTOCqIZ/48tcm3451CWmRwlOUD8f",
+	"rmkyZ18Hv7QP+vuA/6ywolPuf8B422UU+KnHHPZZJqvWAEyGmhFMYGzl0F0V8mL13N6zLnOd+NRQu4Ey",
+	"3Ad277JDwaN8gAUwX09zZUnWzdSkEJi+OhnqIEwjFoV8o4I6MveshxEP6646qhJ2aq5wClmGICQQLUA3",
+	"O2PT50osdPrNgtYeBExnaYcY8A2+5xeuPNi7eZ3vTLhkg3QpWS50WrQGrdnF3nPspkq4n9F7wFK/+FLM",
+	"p6YwM4WyziS9VC5FMtUiWdAYsDAWojlgMSwgrVZU67W7uGxFLQ/0ACXL9663FyFpSX8meZH3s4GrP3OQ",
+	"O87PVaP3I0/XWPeI/NbI/+/SN75+fMRsmGpN/m741O6qjYPLf+9b2Ob/0QCqP0i8v0CQMTw8ngdHZcRY",
+	"KBQarXa47psFWqbpn0OuZQ8zBYRRlYywTEu8vrJ/44WDbkmIEAvYsZy9L2/psbBzNYZ4h4D/BUxxC59p",
+	"ABfeUOT4YP/w4eEn9z8+fPgzljpez2xLEf+D4/Tn5xcvtduN9yz/M/PgXI1tmMZK3gTn+EXCJwi6pHLR",
+	"pnZRGqVyTInKVKGStanRr2gg79N+pnK7OeuBBv1B0b1zqoZF59XdPk/o1pqqS5Klki2sDGGWYSSkmCyy",
+	"rIJtINqIURDABYCO1YEqUSZTHCNVpiG3GVFPwi/iOL8w+iBNxFTaqQAgmw0a1itX8v/n07Bg9iO+to4z",
+	"dS1Oy5zLxkTM7XIuTaYCXAyVt3aALsZF+Znic3lH1vADl8Tc+iD4fxD8d73I50qj05FoaHe2V7mg977F",
+	"w/l2j6/a7dzMNamd+eJY6gAtDdieSDGTBf7pqwSmOeELkEWJ4b961BDPqTS6cdiQQ3lBm1wTG3xMo1/H",
+	"BxsEf+JJt5X8n+PX71ey/h+DhfzvQLRm4vMoc3d1JBcaUC92PpEnmZK5ZaQNjEbALLAKpoYq4U8aQ5W/",
+	"wK4/HKcPx+mnP05Ee+9+mlhffW/Z/Wi+ZjtbWRa3dBdROqOvm0pJjraQhYqwEi7VzMYrUitRmEJmFDIh",
+	"2rFV30DgT7W0+Ct5oSzn0lL6QpbaQoyNhpbQmWWVEkPUiuyw5eBSg2mT7Tq1IjFjjEAB15eLWoJZW5PH",
+	"+NFEqcSVC/YpzOfqIkU0fsBRQ/cUvhcNdQxetZFrILVCZleQI2FVIdqYdybUbF4sETWboT85FMyaXFgY",
+	"SjTUGK8M6ZIzk6vYpVkQ4Bs84kLj4krlypWQFWMzm6HjrTfUT3F1YGjVEVnlqwVgE94rZ/RYDVyzMldD",
+	"rRezcwz34uWjPWHJpUxKtdwvxkFLmhfsaT7UnFAtNfflEmf8QNEEmBMtYfgcvpZaAbaWQmnXddAdNTKW",
+	"C0q0GWDGO24BAq6imMWxX5jZ3kPyRDMsP+/JBPJiY/qBM1+Jwn1aa8+ltEfrs7X4zfDXuIN4To1ZRf4D",
+	"/1M4CBf7V9aoLotHw9DhuIwYstu/HCYzGa0snBSOfd8Gbbdd4tr23PvxoJYQhLn7qfaQWmGKM7SIY8UT",
+	"6+tbrzVBneJ3T5DGdlbS4dSfIBW3Vm3M8KOw6Z/UOgsyQr1XzMfsBG4N9vv9qDQmQ8mqn9GMTEv0VDWn",
+	"sWLYmSRuSkf1gy3t7j1KdGEh4zeTGpBBBaKUntxNeg2/vfct/WOUJm/fUzamu6H5Zu7iRInzUoQDuZZ4",
+	"FHFU4pf6TMrKLc6xGZijIo61SJMSTYK6qkT9DjWBE5Q9rPFe0VFY5RNNqP7w5j0LXbeDoTsPNc4Qr1R+",
+	"6MSUjmcXVSneN7FRkvepe6kuPj5sBUzkUb//cP/Ro4MHhw8P+48e7f/sDIUyj9dXRYB3Psj8vwzvlIMl",
+	"JHR7QraHMP/3x3oWW2fulW7t1VKuJufAMhDD2kHNFFcWx1dPoQRrLKxltMsrmSuUnCjUqlYi657nPZXa",
+	"MnV8lIGQ4qC/T2ihtmI5C4ROxL1ZOIxPknLJCHcpszQR54vCwffQyMZSM0Iox7WZnEBxQKLnwKcI0gx8",
+	"EJnFmjRZhK66CciV+JLtUOYfADSTkyNyThQ2RoR1G6plHAdQYWioE1lIaIR8fsU0N1caEsyXAANF40/1",
+	"fFGI9uH1dYd6CYtmDfXpIgMer5aGYaaJU1Dw2iBYdMJGxWhD3C9UshQhLbl9YgaLUDwcDQdLwj8jzClM",
+	"HGCLVAYyKJpkDBbtbeeKmJryFCIujEh1YUJQKCKW4sq4CLPEwHyEncKWyaGuIJ8cufs6TSqhekGEPq7C",
+	"X/3VX4nA7TPUZwruh+BR9/dqiUU7ZhA/mKsiTxXsxkT1xO/VklrHI+fQDIaaAGNRQ7Gk8KgZDh8KvxEC",
+	"bSHg6izEwaHAJPxKls09DDwEszH6z6iABUN4D+h78ddnLz+DBY+CxQdeMZd5WUxJj42H2BNtayDQsVDC",
+	"zuVYMQwskD3rdLyiM3Q4dY6oo6E+Ofuy0hGK1KK8jT1QOdS+OjcJlJgoFNjRuuJMzpR4o5YRlUwPJhVx",
+	"2SieMpzLOXquifY++siVIRpq4Q/URx9RjYxiketyXgf9/ZJTYD84CrzpXexaDOq0oNcq23uq5plcYrf5",
+	"QsUQksfwvbiiZRpUdTouyrYI5zQAPKPKi7DgmQqqZAV5VMQAUi0mGYQ90ry5a4SKgAETnJQ7VEVJIwgI",
+	"TwVMcPW1yHEmhP5lcnGhCgS0hVbaNO9TVeTL7vGkUHncESmYYkRiiDHAPFI7hfFAyziL47IzoGVmTsBS",
+	"oIMHwFn85xB+i9LhG7X0RwtIpx0X6rrYG9vLuDPUv1VaYUlbMc5SpQtLmju+CQfe5+TBHYMfibYXCYea",
+	"FeXThT6B9nzkrnyjLHqFRdkbrkyixhnjxlmi3KEOSdcKd28ekSXId8YwYBRCjBaUoGU71HQ9nqtETFWu",
+	"ohoFqslEjYHITe5m6q0ZDJxHFYOkXgaJflao67nJcT16ggCdT0j+64KHbyDKQfjqk0NNwZpU+NEytpsz",
+	"Uq0c15j4OmgJZcdQFDIOEKZi0XYLQ5w3dnXbcEMK1PY7R1y1Oa4LpjFDrwXd4jVyrjjES7QPIXTbKSN4",
+	"YFMrvnj9tPsJwEFndBUgK+kSe8LiZakV6YWGA9kh0I3D/U/6Q93mqQNW4TnM2bjAcxEPW/GReP4USPbk",
+	"9PlTkaVaCaUTKA39PNUI9WcsH9ChHk9lLseFyqGv+K9iVx+atgeWAh7YN+l8DkRznkn9Btu04Q/swaND",
+	"b9Bgh/2ynY82rCdOTLaYaesTVFCcAZLAKQ9geb4TY3xJfOdJVXxX2p9ycyW+c7cd/jHU33W73cr/h1Zi",
+	"AAKLxXdiqaz4TsSuhRj/wO9jQW96hAT3Mj8QqY/wW/MQP8cLuvwY/6x+SrZPeruK4+i/csiNlZ8j8eN/",
+	"/r+Lfq0FdzuUHxtdyZ5luWLDD0PtFwE1Rui/7KUUJmozdRmTKx+4H8REjrHWIWWxir5o0yskmu53uKHU",
+	"jsJZYFuUAkz6hd/ve9YP2kxKdpNqQCiCDm/9HdBaV5DmQS/OVQ4UBSW3WEJzTmp2neXmylb5Hlw2Jfkg",
+	"32BqCDUBYtrIENzNpWRRbaRKFh0X+YqjrvUQ7Fub/m3psi+7qfUQ7BxUFDNXLAGlVJuXrgWeM7SEv+KV",
+	"SFVZ8TyG/ablPeLrK+JpRNGNXsTvqzvN3ABlufAXgDbBrG3agQEWa4DbGu5A4YEi/X46+dqUgBEEvq+h",
+	"lfbKz9AIofin11ycPiw+xiuVo19FFizsAL98VoRTxaXRDcPxOeChHuHTtG1QZR+aWCFWNiXRYKhgw5KZ",
+	"aLusiebGeA8FpXgPeXAtazxcbSzA4MRmn1EPggeubkh9DlZM+xIFuHmfsZK4sErEPRADsEDfTGZiblCm",
+	"lVq4yxFvco1XXbzfe6C69+MOIdvC2puFRYXeKrgiC5PbIxF/Jj+DW/mZnsRl9Z/0jQpDQ9AggI4ZUZJz",
+	"TuURJLrPYIosvo1VlvEWOjkNbuqlKAxOHldPwMXgr2dkT/S5doW6gXB8Nk/i6J/uKylmKSGv+gNAv0eg",
+	"OwgkIlZuS5mZtG0gFb63GWnMXYwcvg87Cm1wCA2+dNh/9DEpGCHFUtkN3ASVr6EF+osGR49iOtvN78cd",
+	"f+BxjV2VWEs0ROvYBmhg8BWUuiucWU/I7txBR+5k+k/wRxs8cHYRV64VaBMlI8ptk4RtAG0d9PsAcCDQ",
+	"DoBs2CMcdMUZafJoBmBvlWKbjG8RZWWgJKGN7tKdRAk4R6TDCpHJJeoX54ZcQK7q3fkyrG94j45QokDV",
+	"zIMEQWjiPEc4DHT6ovmX60sK6de81+vFbuPIA0hBlIOhjuN4qP+KJWLqOLi7XeaZyrv7os0C2qog1hlq",
+	"oO/I2SLITFOVKhyLiDxHj9z9MNRuLyNOVYue70f93oMIkBX6B1G08Y3+o0+a3ziI9nt9eOOg/6D5jfvR",
+	"Ab1xuL+PbxD5uN8j/PhBP0KMhoM1L+zfv08v3I8OeEHXxMyeLu4ECLdqNATKQErzygRe+AyIzPcCJmav",
+	"8df5EP27yEDZPJqAtEo5b924ypff+9g8jiMaK2UJdlmCDq4bZYgYvDPY4IYhev0PRmfg9qnh1awbkNMh",
+	"t160l+6Dt+8HOrn/SYlAFuzpoBVyl1bk6LCWr+qnw0iTtsAo7RBTpQm5pYRWOViFVjlAvnFw+LABsoU+",
+	"XwPTcn+1rf379xGkxYvea4dUg40G7uVBop/vN7TcP2D2tnaYtSb3gwabpt2neff3t23wIGiwYe7ANeF/",
+	"+g+3bfAwaPBwtcFP9h9Bg58cHGzb4CdBg6sgOvsfH8Ia7n98/+EugHaniyCGP2o5c1CF4FsfLs27uzRr",
+	"0SJ1jog6gLMEoqyE6e6pfq70RTENPb1hTfqfLvUCbKWbEdFDdSioIc35N22Te/dUzsbyoV5xkUQUhMYf",
+	"sYzobPjOjswhQUFueZMpfnWhY7TNu9raqXWKM/fm1o51zxK7AjutWWbBPr1NOvq5MZmSGk/ZdhnwXI2C",
+	"U+DRgA2QpR+y3z8kwbzneAHAVhHSH+RJWgSHOQwYWOgts1sbYgPcNfNO8QGvWQkFERQBEisOn5iz/Uon",
+	"DMcLmysdAOwONblUxIX3JrG7IwjlFVZpBqYhd6BlJRS89RAbkKRSwOGLAs9Op3RmgmdFVB0rgbdo1ZfU",
+	"E25upDhHvhSLpX+mJavzvRCW4lBLrHdirGpak6tNbiCofQOORjCDDLUhx3tuFoXyDkEuwmm4TrSq+hEd",
+	"K10Dj3USONzuXkHcVQ18XzDut1f+3seI7kzl2yJobScV8Bei7X0Qen9moZdDEdhCuMqyPojAH0TgDyLw",
+	"BxH4ZxKBySXxHiXhb7cOy39HACiYjkvNki4UbYBTcp4yLtLv40HYDYsBgD5pgZ5VMrhyNVYpli2qMr51",
+	"Yfi38A+cLvT7LrQLw1rP0z/Esv8CwFfdmSTivdUZ3D2QnYrFvO+cV/omiMD1FU9tVD1tHPsHsTRcCTVX",
+	"ELM8my8wlFyPVeQud+XjjayPD18twED4bykGRVIJziQ+4rxMF81O4eGU4INJOQ35iDR4F+QOoRCWihjw",
+	"IByKHs40HEYZgu/rh0EMKBcIc1mAuPM+P9FHhp6GqUND/Vjl6WWpxrs5Os70+UkUxtAuskoZOQzGHKfA",
+	"4oIwTEpFgl2IOU9pRI/iwVDv94JeripDXFsPbiBiN6n4aKgPwibGZpElopIeUHv9fr1HX47VZ1XWvjgM",
+	"v+DYW1iMGXD6wuRLlxogMWDYh3dgMbpaWw96IdRecyarL+xcKaLHwQBMDVT7OIgSpXGFvUX1Sr74eaVL",
+	"F6XVVJk3VzgPJB1IOsXIL4wkWan/66TNdZSd8pLAe9gAfTxVuYIrdE2dXzFNLa5urdwvtoBtQ05xhUIY",
+	"sAlDvZx2hl1X9WQKVBJJnk6KDudJ877iTrolTwuODa+WVOZFwzZovSgHGj49GuqPQ3Kp1BociDhI0QVy",
+	"eBi+G5QwFG2v5cBJiShG3FcxpMF2BjgEPlXA8SswAD7PH482tu4Sv0FRdIW1mN3GniO8RPMU2SXsUFPs",
+	"8zFGXw9EKCBMpmn+axdkXJaWxqhnjGh5+rtnp+L0ENhrlnF4Y/zpQicQ4QpjeHluVX6JrcVWtC9lxijO",
+	"ONkvTr54IcYmUaRsF4sg47+S8TgQ5RKIH//TP4kJKHpRJR/6x//0T0M9zxVED2kJKMmeMcIXY6khRotj",
+	"lalWCg7nSMSJgos1phNYUhH+gtzyaW5mcbmRnZ6oLlolVHw51G6FXNg0Ssm84WzozM2VkyjL2DE51HYO",
+	"16KdKlWIK+R18DctN2zZIpMY4ZljpDy2+ZtI/DoS3Uj8h0gU8nyoMf7a19SUfEl1xDxXk/Sal4By1I0t",
+	"cjOfKq5NDjdPeEdJuP4MLRRlSFSAv3FJaL9F28dX+ksKZg3IcyItVpbsuhtS2jR72L08+LXKH9ISOhob",
+	"6t89fyguD3oPevsifnn6xR9P+/uxmClrEZMi1eLJ6UOB6Td4KblYTr5S2y/OfhcN9ctPT+mnl5/+Df5M",
+	"Ux3QxCIixIVOi4h/EUSOkTAlAQ91kc5U5HFvQZKaI5QFte04Bdt/I77b1QW8I5SmG2+opRjLPE8hq5zy",
+	"azAT5sXz56/EJKd4SwPCxO9ev34FZYK0z/oqprlSdFQI5WGhxyovZKqLpThfJBeqEEvF+S1BmW6K+wQs",
+	"AqonipvDwYtrNJBTn339Eygins9UtZE6qi1zG0dwsCjLuRIl7+mVllVzDnc+CsjvpPK4dahHAKw3qYCU",
+	"3Uzam7/bkChsP2hXP792dVaBJeCk9oV+r0nCpFv5KKd3zRimdgLx03Ms5/6A9kE4kQJrv4kLg9leXmq0",
+	"pVUcgtQRQ6ZWbq1AFauuRuVKFywFQb2IsMJaWnpg2qVyB8HQE06wCwpreFGwxG3hIF42z3rhIsBFKkLI",
+	"giogEtz3a7KaxeakZixsV5HQU7uiV17JcrmPOCGLFCy4Sxz+jHcPOksRhv+jpqUsJ1c0ahLWB5kPddAr",
+	"ojGV8l9dSYf4fEcLvOFOlyNIn7SwKpughgD5fmhTcDMN1L6FvjG/mS/BoPwcOng57Rn6mkLbTt5wMDtM",
+	"Gkc+o0OkSSWZuVIADCuCgC0cBC9QiThjwZekKzxi01TasFFWW9zUSCsY6nJ26520vIB34ajd4Uq9ZVRm",
+	"JU5ybYTmo8F9F6G5OZiyIWbvPoUpHjx6tEuIHS/izwSVW7neG69frz17BNG8NCq5dOUPdeY+OF3ev203",
+	"STw1FiaIQPrGFaArpmq2izCywfPCHe19633vb9+3YXdSZh0Su4+EHOfGWpgoHUBXBotufTT7DvWK3fdI",
+	"3HD5+a5YEGB9ahskJUFASmU24hr9idjaWhVqlc9AGfPK1FcuZv51DXySH9HdhMm8TzdSdW0+qD2/dMaz",
+	"ckpljVrfmwJUli+gA1wiLG6nCW3mPp8uURyFTlQucF7fyC6bZ8MgFPRtOC3C10xA9QYDEYfaDxRRwm2E",
+	"+Al8dmHAXH2nHH9phhFykaSFKHKZZjisr/glLj3YACJZFuVjPzLcB8787AEtFRjdxEwm3kWEIxFtyLp2",
+	"I+xEFeM0AMUpDXa0kVs0nGYUAMmiBdYJQecKzXSBFXao297q6nWhFb8KGbk7rBz4lYZGGZ0W1GuEHBVN",
+	"kJlRoNXBYsAUcSFVEgKKwk+jwrjJdMjGCf8OlpN7z9JL5Vd7qHHhvKsEL4FHA7+MtHNuawgkt+EmcHt5",
+	"5jq7C2Whgfu/A9v/4otnjx3Dv6Vu8Q41NvBsgWmFMPZDk8FVbvRF7crvbV+m8Ct/1n6mUoXlnq+54soj",
+	"WRL4B03igybx3i90dzSELClve6jzm+5sNkx1Z7JQeSqz9xkRMjZ5Qljh7FbnPhHjZ2yStUWoz/iLF36Q",
+	"75MT1DrbWJjaDegDyvB7KU29Qio71aR+T2Woxypn23muXD1pNz4gfVtAVQJrGOeIvX9oi+dPx+gij9GZ",
+	"6ZJY1PVc6kQlo8BHGFOsYjwGEVdeqBFhJsUMAhIXJlM51XBu//AvQkal+TdX40Lqi0Um82ioF+I3Qu79",
+	"+I//9T4KVbURmrzifCRkjnmu5jLnwKOhlpqSZPxECQkZhC0tYvfyaIKOdweGybPmnxnGyhZqDmEiWQpY",
+	"ZByLqmUmLgF/hHzEs+dekU7zofbztJ0jEbgiIvQBYxPO440lD3xQwlwSHDMHMvyGH4gfvhf/9n8TPIQ9",
+	"7L7jQ6pylckCxEtHfUMd7Al4FM4xQaLs4B5jPaF4TNO4Z4Xca8OK//D9l52hbv/1yW9fAJaJ+OG/Pejt",
+	"9z4+Ek8WuQSes3fy7PXxifj8i+MX4ng+74knvX3AXuL64b6A4VAzvP1ASGSXIkXAHYqRA9i4Rxsqv9XZ",
+	"2i+hynYtRTyBB5+9vN89e/3y5PddAH7B5xXix/T2psPSGjzAH9JcWW8rf9jtf9y933+NUAZsK4dUltag",
+	"5Q/vaFYuSWbgw+cvX3fJ0L6PqAULmI3KQbumOYhT97E4ox9trTp41EKSI7j87e3rtU36mQztK7Sy1uzD",
+	"V7pbwduVx/ZiQNwskux9C7TxIVXig6z9vmUO4rlBsKIIeMMti2Ovpec7l7QbTds3sv0GAwWy4l++ZXpL",
+	"LlUypw/W6V8CfP+7nK3dLNJUPnLnunjPrF0oK6TIpU5AkoRmRNsjk+8ffCLO08J2Sm8PJAdoAju3zsqs",
+	"xrkqvOkYo0VcJqLOlkceKk7lDoUenqMIyojmQ401fTEwFPMVMnNhRVqsl/Jew1B/VtEuQGxG80SIFvW1",
+	"5zCVx1GLFq7m5tw+LAFn/TPJStj3DTm0SEBBmRgmDQi11Si8f6jv+0FY2ZmXIpsSkqgr4KHM9bYUT+ht",
+	"n7dJRfK3ZpWn6tK8YV0YWzpi/0sJP9rf75QKuVbXJdI/lUMa6gBL1cV95dhuQm2yU7+xnC8Odw3Xe3+u",
+	"lwovOVxdLVqW5IPE8UsQ6WEr3v2Y5Eon9j0VHKM3QB+uobAj2K2zdYU1PoNsPrQzDDVk73j6j0Wbq/eJ",
+	"2GZmjhDP0NO5tCpE258pSc5yDg84e4wtlRmFsfsiLlOhyuGSm1wn5qrs8KAPpULhbs1N5rCBbVoIWYgf",
+	"/uVAnD0W7SuZQ3FQsrn98C/38SEF83YwmsZoCDI9m6qrqcwLSJ3KC9F+dvZSPPzkYb97wNP5StniAnO7",
+	"MaZ1v3tgy8Yjsd+9D3jnB90DG4nT7qGNxGF3n6KT9vvXok2Zhh20sSlYSEkpp+XC2moWqKW8H0Sz0Kbw",
+	"qYpH/l8hSAbYQDmuYKhj38FATGRmVQym2MvUZGR2dQZVi5MJ68NCgxD3fGkyjDXGxJyJunLAz8WVWdmc",
+	"YqpyDpj1mw7AwbQfGPusF1nGSUfUZWrLReiJY8JUFvsIp1zOaqiBsI8EwG7oMdXmdOVXdUgRGFSAtVjb",
+	"WuYI+V64tUA7MWwiHivBF3oUiLqIJjJWEWdnnhvEv1lSpPlQf34i8CJPFrmylPYvx+NcJWnB9RByBdbv",
+	"Ai4VnYizl6+4+sc67/9vVYGjWXOPvH+ko6ZunKH0ffbhZ7s1GhGu0yv/WQMc0hNEWQH+EUbcRyLVmA5w",
+	"uRbPCgjjDhB5n8uioXd1fUPvhbmDvn9nrsRM6mX9TEalGIT5gFUGGlEZrSJg0utG6X5vrtZ6EBZrPajU",
+	"aj34iUsr0nlaF6ut8hQWBY6um1HkseR1UrLGD97VuxeLHufppHASB9cXdAea0hkpeRLFjNplDptTvXkD",
+	"sYpo/a4MOHg97M0zU/Ts5cV7Er+wl0oKNvUb18ChymshEhQKxLkwvDwopQxC2YFLhlHEMwfvKV2gaKD5",
+	"biOZaKgDUYjWuYya49ZQ9KBToTCiPFMudBH9xFhDMIO7+7RBGNGmoFFvuvxeZaY4+/K3H+7AD3fghzsw",
+	"uAPTmbxQe/by4tfXs+wWecHIGj5cY3dfijxkvZTji7w7EsTF7vhWgr7VeJGD1RC44rmSucqPF8W0NfgD",
+	"FRRAg/66vBH61dU/ZUUtQOYdsMoHRiuyonEoiqufKpMkV9aKPTNXWs7T3lLOMsxanahiPHU4QW3Vu+iJ",
+	"eFoUczvY22P4skye99hSH3OkyCLPWoPWHpr8ea3q434WFIVbaEuR3mW0UJna2i7tCLbTK48qfNUAcPuU",
+	"SgWHbTkeQal7AYYPCAA2aJK3c7XRZxpWX4l5rpJ07HCSnYGxglgatle+3tTo5z4MHcYSZgAEk8QXmj4u",
+	"U62rhfIjn6FYLxVfTJUDi5kolVR64TSclW6+bEw3jsr867IYLacPaDEx+VgFrX8zbmj4GG/fdCwzBtKw",
+	"QWgW1wCVmOFrsnScqnBZ+YOmVl89I4Nc+Do9aHj7Fca4+gUz1RRPlalxkRudjssA2crm4tcNzT4Hp52y",
+	"vgA3/nOmijwdu/aDs9mrw/cStXz99n8bAA==",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,

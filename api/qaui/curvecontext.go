@@ -33,6 +33,7 @@ type curveContext struct {
 	SupersededBy *lab.CurveSummary // the revision that replaced this curve; nil while current
 	Excludable   []excludableRow   // readings a reviewer may exclude from the page
 	Previous     *comparison       // the previous curve of the instrument and analyte; nil when none
+	Sequence     *sequenceView     // the run's sequence for this analyte; nil without one
 }
 
 // standardRow is one reading of a standard judged by the back-calculation
@@ -69,8 +70,9 @@ func (s *Pages) contextOf(ctx context.Context, cv *lab.Curve) (*curveContext, er
 	r := cv.Report
 	out := &curveContext{Candidates: r.WeightCandidates}
 	rd := s.Reading(ctx) // lag-tolerant reads, as the curve's own
+	var seq *lab.RunSequence
 	if run, err := rd.GetRun(ctx, cv.RunID); err == nil {
-		out.Operator = run.Operator
+		out.Operator, seq = run.Operator, run.Sequence
 	} else if lab.KindOf(err) != lab.KindNotFound {
 		return nil, err
 	}
@@ -99,6 +101,7 @@ func (s *Pages) contextOf(ctx context.Context, cv *lab.Curve) (*curveContext, er
 			out.Samples = append(out.Samples, res)
 		}
 	}
+	out.Sequence = sequenceOf(seq, cv.Analyte, out.Samples)
 	if out.Checks, err = rd.ListVerifications(ctx, cv.ID); err != nil && lab.KindOf(err) != lab.KindNotFound {
 		return nil, err
 	}

@@ -38,6 +38,7 @@ var uiPages = func() map[string]*template.Template {
 		"num":        func(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }, // a setting, as given
 		"pct100":     func(v float64) string { return strconv.FormatFloat(100*v, 'f', 1, 64) },
 		"pct":        func(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) },
+		"rfPct":      func(rf, mean float64) float64 { return 100 * rf / mean }, // an RF as a percentage of RF̄
 		"when":       func(t time.Time) string { return t.UTC().Format("2006-01-02 15:04:05 UTC") },
 		"day":        func(t time.Time) string { return t.UTC().Format("2006-01-02") },
 		"statusWord": statusWord,
@@ -358,6 +359,8 @@ func equationText(r *calib.Report) string {
 	}
 	g := func(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) }
 	switch r.Model {
+	case calib.AverageRF:
+		return "y = RF̄·x, RF̄ = " + g(b) + " (average response factor)"
 	case calib.LinearOrigin:
 		return "y = " + g(b) + "·x"
 	case calib.Quadratic:

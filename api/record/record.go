@@ -356,6 +356,8 @@ func equation(r *calib.Report) string {
 		return "no fit"
 	}
 	switch r.Model {
+	case calib.AverageRF:
+		return "y = RF·x, mean RF = " + g(b) + " (average response factor)"
 	case calib.LinearOrigin:
 		return "y = " + g(b) + "·x"
 	case calib.Quadratic:

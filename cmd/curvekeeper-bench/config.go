@@ -11,7 +11,7 @@ import (
 )
 
 // scenarioNames are every scenario, in the order they run.
-var scenarioNames = []string{"startup", "ingest", "predict", "history", "fit", "fit_4pl", "growth"}
+var scenarioNames = []string{"startup", "ingest", "ingest_large", "predict", "history", "fit", "fit_4pl", "growth"}
 
 // defaultScenarios run unless -scenarios says otherwise: every one but
 // growth, whose load of millions of readings takes minutes on its own.
@@ -29,6 +29,7 @@ type config struct {
 	Rounds         int           // alternations of service and baseline per load scenario
 	PhaseTime      time.Duration // per round and side
 	IngestMax      int           // requests per round and side
+	LargeMax       int           // large runs (100 analytes × 8 levels) per round and side
 	PredictMax     int
 	HistoryCurves  int // curves bulk-loaded
 	HistoryPair    int // of which in the queried instrument and analyte
@@ -90,7 +91,7 @@ func (c *config) setSizes() {
 	if c.Quick {
 		c.Budget = 60 * time.Second
 		c.Rounds, c.PhaseTime = 2, 1500*time.Millisecond
-		c.IngestMax, c.PredictMax = 400, 20000
+		c.IngestMax, c.PredictMax, c.LargeMax = 400, 20000, 6
 		c.HistoryCurves, c.HistoryPair, c.HistoryPage, c.HistorySamples = 12_000, 10_500, 200, 200
 		c.StartupRepeats, c.FitLoops = 1, 500
 		c.GrowthReadings, c.GrowthRequests = 200_000, 300
@@ -98,7 +99,7 @@ func (c *config) setSizes() {
 	}
 	c.Budget = 5 * time.Minute
 	c.Rounds, c.PhaseTime = 3, 5*time.Second
-	c.IngestMax, c.PredictMax = 5000, 200000
+	c.IngestMax, c.PredictMax, c.LargeMax = 5000, 200000, 40
 	c.HistoryCurves, c.HistoryPair, c.HistoryPage, c.HistorySamples = 1_000_000, 100_000, 1000, 1500
 	c.StartupRepeats, c.FitLoops = 3, 3000
 	c.GrowthReadings, c.GrowthRequests = 10_000_000, 1500

@@ -95,7 +95,7 @@ func (h *harness) run(ctx context.Context) error {
 			return fmt.Errorf("startup: %w", err)
 		}
 	}
-	needService := h.cfg.has("ingest") || h.cfg.has("predict") || h.cfg.has("history")
+	needService := h.cfg.has("ingest") || h.cfg.has("ingest_large") || h.cfg.has("predict") || h.cfg.has("history")
 	if needService || h.cfg.has("growth") {
 		if err := h.openDatabase(ctx); err != nil {
 			return err
@@ -109,7 +109,7 @@ func (h *harness) run(ctx context.Context) error {
 	steps := []struct {
 		name string
 		fn   func(context.Context) error
-	}{{"ingest", h.ingest}, {"predict", h.predict}, {"history", h.history}, {"fit", h.fit}, {"fit_4pl", h.fit4PL}, {"growth", h.growth}}
+	}{{"ingest", h.ingest}, {"ingest_large", h.ingestLarge}, {"predict", h.predict}, {"history", h.history}, {"fit", h.fit}, {"fit_4pl", h.fit4PL}, {"growth", h.growth}}
 	for _, s := range steps {
 		if !h.cfg.has(s.name) {
 			continue
@@ -223,7 +223,7 @@ func (h *harness) startInstance(ctx context.Context, dbURL, logName string) (*in
 		}
 		body := map[string]any{"name": t.name, "scopes": []string{t.scope}}
 		if t.scope == "runs:write" { // bound to the instruments runRequest posts for
-			body["instruments"] = benchInstruments()
+			body["instruments"] = append(benchInstruments(), largeInstrument)
 		}
 		if _, err := post(ctx, cl, svc.base+"/v1/tokens", in.admin, body, http.StatusCreated, &out); err != nil {
 			return in, err

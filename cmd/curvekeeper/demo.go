@@ -111,6 +111,10 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 	if err != nil {
 		return err
 	}
+	lcms, err := loadLCMSDemo(d, tokens, now)
+	if err != nil {
+		return err
+	}
 
 	base := "http://" + cfg.Listen
 	if strings.HasPrefix(cfg.Listen, ":") {
@@ -156,6 +160,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 	fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $INSTRUMENT\" -H 'Content-Type: text/csv' --data-binary @testdata/demo/nitrate-run.csv \\\n"+
 		"       '%s/v1/runs?method=%s&instrument=%s&acquired_at=%s'\n", base, demoNitrate, demoUVVis, now().UTC().Format("2006-01-02T15:04:05Z"))
 	immuno.print(w, base)
+	lcms.print(w, base)
 	fmt.Fprintf(w, "\nThese are invented data. Results support, and never replace, the laboratory's accredited procedures;\n"+
 		"its accreditation, regulator and method SOP take precedence, and a qualified person reviews results.\n")
 	_, err = io.WriteString(stdout, w.String())
@@ -217,7 +222,7 @@ func demoTokens(ctx context.Context, db *store.DB) (map[string]string, []string,
 	for _, r := range demoRoles {
 		in := lab.TokenInput{Name: r.name, Scopes: []string{r.scope}}
 		if r.scope == lab.ScopeRunsWrite {
-			in.Instruments = []string{demoICPMS, demoUVVis, demoPlateReader} // instrument binding
+			in.Instruments = []string{demoICPMS, demoUVVis, demoPlateReader, demoLCMS} // instrument binding
 		}
 		in, err := lab.CheckTokenInput(in)
 		if err != nil {

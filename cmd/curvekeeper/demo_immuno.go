@@ -106,20 +106,12 @@ func loadImmunoDemo(d *demoClient, tokens map[string]string, now func() time.Tim
 	var existing struct {
 		Curves []curve `json:"curves"`
 	}
-	if err := d.do(tokens[lab.ScopeResultsRead], http.MethodGet, "/v1/curves?instrument="+demoPlateReader+"&limit=20", nil, &existing); err != nil {
+	loaded, err := demoLoadOnce(d, tokens, demoPlateReader, "demo-immuno-run", "demo plate", func() []demoRun { return demoImmunoRuns(now()) },
+		&existing, func() bool { return len(existing.Curves) == 0 })
+	if err != nil {
 		return p, err
 	}
-	if len(existing.Curves) == 0 {
-		for i, r := range demoImmunoRuns(now()) {
-			if err := d.doKey(tokens[lab.ScopeRunsWrite], fmt.Sprintf("demo-immuno-run-%02d", i), "/v1/runs", r, nil); err != nil {
-				return p, fmt.Errorf("demo plate %d: %w", i+1, err)
-			}
-			p.loaded++
-		}
-		if err := d.do(tokens[lab.ScopeResultsRead], http.MethodGet, "/v1/curves?instrument="+demoPlateReader+"&limit=20", nil, &existing); err != nil {
-			return p, err
-		}
-	}
+	p.loaded = loaded
 	// Curves are listed newest first; the saturated plate is number
 	// demoSaturated of demoImmunoPlates.
 	if n := len(existing.Curves); n >= demoImmunoPlates {

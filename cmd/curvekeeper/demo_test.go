@@ -56,9 +56,10 @@ func TestDemo(t *testing.T) {
 		}
 		return n
 	}
-	if n := count(`SELECT count(*) FROM runs`); n != 30+demoImmunoPlates {
-		t.Errorf("runs = %d, want %d", n, 30+demoImmunoPlates)
+	if n := count(`SELECT count(*) FROM runs`); n != 30+demoImmunoPlates+demoLCMSBatches {
+		t.Errorf("runs = %d, want %d", n, 30+demoImmunoPlates+demoLCMSBatches)
 	}
+	checkDemoLCMS(t, first, count)
 	// The demo lab's certificates and stocks (demo_uncert.go): every run
 	// names the stocks of its analytes, all in date at the run.
 	if n := count(`SELECT count(*) FROM standard_materials`); n != 6 {
@@ -139,8 +140,11 @@ func TestDemo(t *testing.T) {
 	if !strings.Contains(second, "loaded before") {
 		t.Errorf("second load did not say the runs were there:\n%s", second)
 	}
-	if n := count(`SELECT count(*) FROM runs`); n != 30+demoImmunoPlates {
-		t.Errorf("runs after a second load = %d, want %d", n, 30+demoImmunoPlates)
+	if n := count(`SELECT count(*) FROM runs`); n != 30+demoImmunoPlates+demoLCMSBatches {
+		t.Errorf("runs after a second load = %d, want %d", n, 30+demoImmunoPlates+demoLCMSBatches)
+	}
+	if got := demoPrintedID(t, second, "analyte-T of the batch whose mid-batch CCV fails:"); got != demoPrintedID(t, first, "analyte-T of the batch whose mid-batch CCV fails:") {
+		t.Errorf("second demo printed another failing LC-MS/MS curve %s", got)
 	}
 	if got := demoPrintedID(t, second, "marker-K plate whose top calibrator saturates"); got != saturated {
 		t.Errorf("second demo printed the saturated plate %s, the first %s", got, saturated)

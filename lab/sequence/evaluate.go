@@ -275,7 +275,7 @@ func (e *evaluator) judge(in Injection) (CheckResult, error) {
 		c.RecoveryPct = 100 * in.Found / in.Nominal
 		w := e.cfg.Verification
 		c.Passed = c.RecoveryPct >= w.LowPct && c.RecoveryPct <= w.HighPct
-		c.Detail = fmt.Sprintf("recovery %s (found %g, nominal %g) %s %s", pct(c.RecoveryPct), in.Found, in.Nominal, map[bool]string{true: "within", false: "outside"}[c.Passed], w)
+		c.Detail = fmt.Sprintf("recovery %s (found %.6g, nominal %g) %s %s", pct(c.RecoveryPct), in.Found, in.Nominal, map[bool]string{true: "within", false: "outside"}[c.Passed], w)
 	default:
 		limit, basis := e.cfg.ReportingLimit, "the reporting limit"
 		if e.cfg.BlankFractionOfLLOQ > 0 {
@@ -286,7 +286,7 @@ func (e *evaluator) judge(in Injection) (CheckResult, error) {
 		}
 		c.Value, c.Limit = in.Result, limit
 		c.Passed = math.Abs(in.Result) <= limit
-		c.Detail = fmt.Sprintf("|%g| %s %g (%s)", in.Result, map[bool]string{true: "≤", false: ">"}[c.Passed], limit, basis)
+		c.Detail = fmt.Sprintf("|%.6g| %s %g (%s)", in.Result, map[bool]string{true: "≤", false: ">"}[c.Passed], limit, basis)
 		if !c.Passed && in.Kind != CCB {
 			e.noteAll(fmt.Sprintf("%s %s at position %d exceeds its limit: %s", strings.ReplaceAll(string(in.Kind), "_", " "), in.ID, in.Position, c.Detail))
 		}
