@@ -43,7 +43,11 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 			return nil, lab.FieldError(lab.Pointer("analytes", i, "name"), "analyte %q is listed twice", a.Name)
 		}
 		seen[string(a.Name)] = true
-		in.Analytes = append(in.Analytes, lab.Analyte{Name: string(a.Name), Unit: string(a.Unit), Quant: quantFrom(a.Quant)})
+		an := lab.Analyte{Name: string(a.Name), Unit: string(a.Unit), Quant: quantFrom(a.Quant)}
+		if a.Uncertainty != nil {
+			an.Uncertainty = viaJSON[lab.UncertaintySpec](a.Uncertainty)
+		}
+		in.Analytes = append(in.Analytes, an)
 	}
 	m, created, err := s.lab.DefineMethod(ctx, p, in)
 	if err != nil {
@@ -200,7 +204,11 @@ func methodOut(m *lab.Method) oapi.Method {
 		out.ExpiredStandards = &adv
 	}
 	for _, a := range m.Analytes {
-		out.Analytes = append(out.Analytes, oapi.Analyte{Name: oapi.Identifier(a.Name), Unit: oapi.Unit(a.Unit), Quant: quantOut(a)})
+		oa := oapi.Analyte{Name: oapi.Identifier(a.Name), Unit: oapi.Unit(a.Unit), Quant: quantOut(a)}
+		if a.Uncertainty != nil {
+			oa.Uncertainty = viaJSON[oapi.UncertaintySpec](a.Uncertainty)
+		}
+		out.Analytes = append(out.Analytes, oa)
 	}
 	return out
 }

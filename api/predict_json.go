@@ -45,6 +45,7 @@ var (
 		MeanResponse   float64
 		Readings       int
 		StandardError  *float64
+		Uncertainty    *oapi.UncertaintyBudget
 	}(oapi.PredictionResult{})
 	_ = struct {
 		Bounded  bool
@@ -144,6 +145,16 @@ func appendPredictionResult(b []byte, r *oapi.PredictionResult) ([]byte, float64
 	b = append(b, `,"standard_error":`...)
 	if b, ok = appendJSONFloatPtr(b, r.StandardError); !ok {
 		return b, *r.StandardError, false
+	}
+	if r.Uncertainty != nil {
+		// Rare and nested: encoding/json writes it (json.Marshal writes what
+		// an Encoder does, HTML-safe, without the newline).
+		u, err := json.Marshal(r.Uncertainty)
+		if err != nil {
+			return b, math.NaN(), false
+		}
+		b = append(b, `,"uncertainty":`...)
+		b = append(b, u...)
 	}
 	b = append(b, '}')
 	return b, 0, true

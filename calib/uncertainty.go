@@ -281,8 +281,16 @@ func (r *Report) CalibrationTerm(name string, responses []float64, dilution floa
 	if err != nil {
 		return UncertaintyTerm{}, Prediction{}, err
 	}
+	t, err := r.CalibrationTermOf(name, pr)
+	return t, pr, err
+}
+
+// CalibrationTermOf is CalibrationTerm for a prediction already made by
+// r.Predict (the prediction route and ingest have it), so the readings are
+// not inverted twice.
+func (r *Report) CalibrationTermOf(name string, pr Prediction) (UncertaintyTerm, error) {
 	if !pr.HasEstimate() {
-		return UncertaintyTerm{}, pr, inputErr("responses", "the curve gives no single concentration for these readings: %s", pr.Method)
+		return UncertaintyTerm{}, inputErr("responses", "the curve gives no single concentration for these readings: %s", pr.Method)
 	}
 	t := UncertaintyTerm{Name: name, Source: SourceCalibration, Kind: DistNormal, Value: pr.Concentration,
 		StdUncertainty: pr.StandardError, DF: float64(r.DF)}
@@ -300,7 +308,7 @@ func (r *Report) CalibrationTerm(name string, responses []float64, dilution floa
 		}
 		t.Curve = cd
 	}
-	return t, pr, nil
+	return t, nil
 }
 
 // checkedMeanSD is meanSD for caller input: it refuses fewer than two values

@@ -19,6 +19,9 @@ type Analyte struct {
 	// (lab/quant.go); zero for an external-standard analyte reported as
 	// x̂0.
 	Quant Quant `json:"quant,omitzero"`
+	// Uncertainty is how the analyte's results state their uncertainty
+	// budget and conformity (lab/budget.go); nil: no budget.
+	Uncertainty *UncertaintySpec `json:"uncertainty,omitempty"`
 }
 
 // MethodInput is a method as an administrator defines it. Acceptance must be
@@ -126,6 +129,9 @@ func CheckMethod(in MethodInput) error {
 		}
 		seen[a.Name] = true
 		if err := checkAnalyteQuant(i, a); err != nil {
+			return err
+		}
+		if err := checkUncertaintySpec(fmt.Sprintf("/analytes/%d/uncertainty", i), a.Uncertainty); err != nil {
 			return err
 		}
 	}

@@ -143,6 +143,7 @@ type ResultEvent struct {
 	IntervalMethod  string
 	Flags           []string
 	Reported        []byte // the reported value's JSON; nil where the method reports none
+	Uncertainty     []byte // the budget's JSON (BudgetRecord); nil where the method asks for none
 }
 
 // FeedPage is one page of the change feed.
@@ -184,6 +185,9 @@ type Result struct {
 	// when the analyte has no reporting rules or internal standard.
 	Reported, ISCheck []byte
 	Sequence          []byte // SequenceRecord JSON; nil without a sequence
+	// Uncertainty is the JSON of the result's BudgetRecord; nil when its
+	// method asks for no budget.
+	Uncertainty []byte
 }
 
 // RunWriteStats counts CreateRun's writes since the service started: the

@@ -22,6 +22,33 @@ import (
 	openapi_types "github.com/oapi-codegen/runtime/types"
 )
 
+// Defines values for BudgetTermKind.
+const (
+	BudgetTermCalibration   BudgetTermKind = "calibration"
+	BudgetTermPreparation   BudgetTermKind = "preparation"
+	BudgetTermRecovery      BudgetTermKind = "recovery"
+	BudgetTermRepeatability BudgetTermKind = "repeatability"
+	BudgetTermStandards     BudgetTermKind = "standards"
+)
+
+// Valid indicates whether the value is a known member of the BudgetTermKind enum.
+func (e BudgetTermKind) Valid() bool {
+	switch e {
+	case BudgetTermCalibration:
+		return true
+	case BudgetTermPreparation:
+		return true
+	case BudgetTermRecovery:
+		return true
+	case BudgetTermRepeatability:
+		return true
+	case BudgetTermStandards:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for CheckName.
 const (
 	CheckBackCalculation       CheckName = "back_calculation"
@@ -79,6 +106,30 @@ func (e CheckName) Valid() bool {
 	}
 }
 
+// Defines values for ConformityOutcome.
+const (
+	OutcomeConditionalFail ConformityOutcome = "conditional fail"
+	OutcomeConditionalPass ConformityOutcome = "conditional pass"
+	OutcomeFail            ConformityOutcome = "fail"
+	OutcomePass            ConformityOutcome = "pass"
+)
+
+// Valid indicates whether the value is a known member of the ConformityOutcome enum.
+func (e ConformityOutcome) Valid() bool {
+	switch e {
+	case OutcomeConditionalFail:
+		return true
+	case OutcomeConditionalPass:
+		return true
+	case OutcomeFail:
+		return true
+	case OutcomePass:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for ControlRule.
 const (
 	Rule10X ControlRule = "10x"
@@ -103,6 +154,24 @@ func (e ControlRule) Valid() bool {
 	case Rule41S:
 		return true
 	case RuleR4S:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for CoverageRule.
+const (
+	CoverageK2       CoverageRule = "k2"
+	CoverageStudentT CoverageRule = "student_t"
+)
+
+// Valid indicates whether the value is a known member of the CoverageRule enum.
+func (e CoverageRule) Valid() bool {
+	switch e {
+	case CoverageK2:
+		return true
+	case CoverageStudentT:
 		return true
 	default:
 		return false
@@ -148,6 +217,24 @@ func (e CurveStatus) Valid() bool {
 	case CurveStatusPendingReview:
 		return true
 	case CurveStatusRejected:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for DecisionRule.
+const (
+	RuleGuardBandU       DecisionRule = "guard_band_u"
+	RuleSimpleAcceptance DecisionRule = "simple_acceptance"
+)
+
+// Valid indicates whether the value is a known member of the DecisionRule enum.
+func (e DecisionRule) Valid() bool {
+	switch e {
+	case RuleGuardBandU:
+		return true
+	case RuleSimpleAcceptance:
 		return true
 	default:
 		return false
@@ -829,6 +916,27 @@ func (e TrendParameter) Valid() bool {
 	}
 }
 
+// Defines values for UncertaintyApproach.
+const (
+	ApproachBottomUp UncertaintyApproach = "bottom_up"
+	ApproachLarger   UncertaintyApproach = "larger"
+	ApproachTopDown  UncertaintyApproach = "top_down"
+)
+
+// Valid indicates whether the value is a known member of the UncertaintyApproach enum.
+func (e UncertaintyApproach) Valid() bool {
+	switch e {
+	case ApproachBottomUp:
+		return true
+	case ApproachLarger:
+		return true
+	case ApproachTopDown:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for Verdict.
 const (
 	VerdictFail Verdict = "fail"
@@ -981,6 +1089,19 @@ type Analyte struct {
 	// first; a qualified person reviews every result.
 	Quant *AnalyteQuant `json:"quant,omitempty"`
 
+	// Uncertainty How the analyte's results state their measurement uncertainty (GUM, JCGM 100) and their
+	// conformity with specification limits (ISO/IEC 17025:2017 §7.8.6). The budget is a product
+	// model: x̂0 with its s(x̂0) from the curve (linear and non-linear), times factors of value 1
+	// whose relative standard uncertainties the method chooses in `terms`: `standards` (the
+	// largest relative uncertainty of the standard materials the run named for the analyte,
+	// certificate and preparation, fully correlated with its stock), `preparation` (each
+	// volume's tolerance a as a rectangular a/(√3·V)), `repeatability` (the sample's readings
+	// inverted one by one, (s/x̄)/√m, ν = m − 1) and `recovery` (u(R̄)/R̄, not corrected).
+	// u_c by the law of propagation, ν_eff by Welch–Satterthwaite, k = t(0.975, ν_eff) or 2,
+	// U rounded to two significant figures. The laboratory's accreditation, regulator and SOP
+	// come first; a qualified person reviews every result.
+	Uncertainty *UncertaintySpec `json:"uncertainty,omitempty"`
+
 	// Unit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
 	Unit Unit `json:"unit"`
 }
@@ -1031,6 +1152,9 @@ type AuditEvent struct {
 type AuditLog struct {
 	Events []AuditEvent `json:"events"`
 }
+
+// BudgetTermKind defines model for BudgetTermKind.
+type BudgetTermKind string
 
 // Cautions What the result is and is not: acceptance against configured default
 // criteria from published guidance; the laboratory's accreditation,
@@ -1094,6 +1218,28 @@ type Concentration = float64
 // Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
 type Confidence = float64
 
+// ConformityOutcome defines model for ConformityOutcome.
+type ConformityOutcome string
+
+// ConformityStatement The statement of conformity with the method's limits under its decision rule, with the risk.
+type ConformityStatement struct {
+	// AcceptHigh The upper acceptance limit applied (the upper limit − w); null without one.
+	AcceptHigh *float64 `json:"accept_high"`
+
+	// AcceptLow The lower acceptance limit applied (the lower limit + w); null without one.
+	AcceptLow *float64          `json:"accept_low"`
+	Accepted  bool              `json:"accepted"`
+	Lower     *float64          `json:"lower"`
+	Outcome   ConformityOutcome `json:"outcome"`
+	Risk      string            `json:"risk"`
+
+	// Rule `simple_acceptance`: the result against the limit (risk up to 50 % at the limit); `guard_band_u`: acceptance limits moved inside by w = U (ILAC G8:09/2019).
+	Rule      DecisionRule `json:"rule"`
+	Statement string       `json:"statement"`
+	Unit      string       `json:"unit"`
+	Upper     *float64     `json:"upper"`
+}
+
 // ControlLimits Shewhart control limits (ISO 7870-2); null without a baseline.
 type ControlLimits struct {
 	ActionHigh  float64 `json:"action_high"`
@@ -1109,6 +1255,9 @@ type ControlLimits struct {
 // above +2 SD and the other below −2 SD; `4-1s` four consecutive beyond
 // the same 1 SD limit; `10x` ten consecutive on the same side of the mean.
 type ControlRule string
+
+// CoverageRule `student_t`: k = t((1+p)/2, ν_eff) (the default); `k2`: k = 2.
+type CoverageRule string
 
 // Cursor Opaque keyset cursor (base64url without padding).
 type Cursor = string
@@ -1400,6 +1549,9 @@ type CurveSummary struct {
 	// weights each calibrator by its own level's SD.
 	Weighting Weighting `json:"weighting"`
 }
+
+// DecisionRule `simple_acceptance`: the result against the limit (risk up to 50 % at the limit); `guard_band_u`: acceptance limits moved inside by w = U (ILAC G8:09/2019).
+type DecisionRule string
 
 // Dilution Dilution factor applied after inversion (reported = curve value × dilution); 1 when absent.
 type Dilution = float64
@@ -1762,6 +1914,12 @@ type MethodRequestSignatures string
 // `power_of_mean`.
 type Model string
 
+// MonteCarloRequest Asks for a Monte Carlo check of each budget (JCGM 101), seeded; draws 0 or absent take at least 10⁵.
+type MonteCarloRequest struct {
+	Draws *int  `json:"draws,omitempty"`
+	Seed  int64 `json:"seed"`
+}
+
 // NextCursor Pass as `cursor`, with the same filters, for the next page; null when
 // the list has no further page.
 type NextCursor = string
@@ -1827,7 +1985,10 @@ type PredictionFlag string
 // PredictionRequest defines model for PredictionRequest.
 type PredictionRequest struct {
 	// Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
-	Confidence *Confidence        `json:"confidence,omitempty"`
+	Confidence *Confidence `json:"confidence,omitempty"`
+
+	// MonteCarlo Asks for a Monte Carlo check of each budget (JCGM 101), seeded; draws 0 or absent take at least 10⁵.
+	MonteCarlo *MonteCarloRequest `json:"monte_carlo,omitempty"`
 	Samples    []PredictionSample `json:"samples"`
 }
 
@@ -1876,6 +2037,14 @@ type PredictionResult struct {
 
 	// StandardError Approximate standard error of the concentration, after dilution; null with no estimate.
 	StandardError *float64 `json:"standard_error"`
+
+	// Uncertainty A result's uncertainty budget (GUM, JCGM 100) and, with the method's limits, its
+	// statement of conformity. `value` and `expanded` are y and U; `value_text` and
+	// `expanded_text` are them rounded to two significant figures of U. Each term has its
+	// contribution c·u and its share of u_c² (shares add to 1). `effective_df` and a term's `df`
+	// are null when infinite. Absent where the method asks for no budget. The laboratory's
+	// accreditation, regulator and SOP come first; a qualified person reviews every result.
+	Uncertainty *UncertaintyBudget `json:"uncertainty,omitempty"`
 }
 
 // PredictionSample defines model for PredictionSample.
@@ -2103,7 +2272,15 @@ type ResultEvent struct {
 	// Seq Position in the feed; increases with every event.
 	Seq           int64    `json:"seq"`
 	StandardError *float64 `json:"standard_error"`
-	Unit          string   `json:"unit"`
+
+	// Uncertainty A result's uncertainty budget (GUM, JCGM 100) and, with the method's limits, its
+	// statement of conformity. `value` and `expanded` are y and U; `value_text` and
+	// `expanded_text` are them rounded to two significant figures of U. Each term has its
+	// contribution c·u and its share of u_c² (shares add to 1). `effective_df` and a term's `df`
+	// are null when infinite. Absent where the method asks for no budget. The laboratory's
+	// accreditation, regulator and SOP come first; a qualified person reviews every result.
+	Uncertainty *UncertaintyBudget `json:"uncertainty,omitempty"`
+	Unit        string             `json:"unit"`
 }
 
 // ResultEventKind defines model for ResultEvent.Kind.
@@ -2415,6 +2592,14 @@ type SampleResult struct {
 	// StateChangedAt When the release state or its reason last changed.
 	StateChangedAt Timestamp `json:"state_changed_at"`
 
+	// Uncertainty A result's uncertainty budget (GUM, JCGM 100) and, with the method's limits, its
+	// statement of conformity. `value` and `expanded` are y and U; `value_text` and
+	// `expanded_text` are them rounded to two significant figures of U. Each term has its
+	// contribution c·u and its share of u_c² (shares add to 1). `effective_df` and a term's `df`
+	// are null when infinite. Absent where the method asks for no budget. The laboratory's
+	// accreditation, regulator and SOP come first; a qualified person reviews every result.
+	Uncertainty *UncertaintyBudget `json:"uncertainty,omitempty"`
+
 	// Unit UCUM code of the analyte's concentration unit, which `concentration`, `standard_error` and `interval` are in.
 	Unit string `json:"unit"`
 }
@@ -2544,6 +2729,15 @@ type SignatureRequestMeaning string
 
 // SignatureRequestSubject What is signed (default `curve`). `exclusion`: the exclusion of standards that made this revision curve, signed by an analyst with meaning `responsibility`; the approver of the revision must then be another person. `release`: the results of this approved curve as they stand (value, flags, release state of each), signed by a qa-approver with meaning `responsibility`, who did not post the run or make the exclusion.
 type SignatureRequestSubject string
+
+// SpecLimits Specification limits in the analyte's unit, at least one, and the decision rule.
+type SpecLimits struct {
+	Lower *float64 `json:"lower,omitempty"`
+
+	// Rule `simple_acceptance`: the result against the limit (risk up to 50 % at the limit); `guard_band_u`: acceptance limits moved inside by w = U (ILAC G8:09/2019).
+	Rule  DecisionRule `json:"rule"`
+	Upper *float64     `json:"upper,omitempty"`
+}
 
 // Standard defines model for Standard.
 type Standard struct {
@@ -2740,6 +2934,123 @@ type TrendPoint struct {
 
 // UUID defines model for UUID.
 type UUID = openapi_types.UUID
+
+// UncertaintyApproach `bottom_up` (the default): the budget; `top_down`: the lab's top-down estimate; `larger`: the larger U of the two.
+type UncertaintyApproach string
+
+// UncertaintyBudget A result's uncertainty budget (GUM, JCGM 100) and, with the method's limits, its
+// statement of conformity. `value` and `expanded` are y and U; `value_text` and
+// `expanded_text` are them rounded to two significant figures of U. Each term has its
+// contribution c·u and its share of u_c² (shares add to 1). `effective_df` and a term's `df`
+// are null when infinite. Absent where the method asks for no budget. The laboratory's
+// accreditation, regulator and SOP come first; a qualified person reviews every result.
+type UncertaintyBudget struct {
+	// Approach `bottom_up` (the default): the budget; `top_down`: the lab's top-down estimate; `larger`: the larger U of the two.
+	Approach UncertaintyApproach `json:"approach"`
+
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions Cautions `json:"cautions"`
+
+	// Combined u_c
+	Combined float64 `json:"combined"`
+
+	// Conformity The statement of conformity with the method's limits under its decision rule, with the risk.
+	Conformity *ConformityStatement `json:"conformity,omitempty"`
+
+	// Coverage `student_t`: k = t((1+p)/2, ν_eff) (the default); `k2`: k = 2.
+	Coverage       CoverageRule `json:"coverage"`
+	CoverageFactor float64      `json:"coverage_factor"`
+
+	// EffectiveDf ν_eff by Welch–Satterthwaite; null when infinite.
+	EffectiveDf *float64 `json:"effective_df"`
+
+	// Expanded U = k·u_c rounded to two significant figures.
+	Expanded     float64 `json:"expanded"`
+	ExpandedText string  `json:"expanded_text"`
+	Level        float64 `json:"level"`
+
+	// MonteCarlo The Monte Carlo check (JCGM 101) of the bottom-up budget, on request only.
+	MonteCarlo *struct {
+		Agrees    bool    `json:"agrees"`
+		Discarded int     `json:"discarded"`
+		Draws     int     `json:"draws"`
+		GumHigh   float64 `json:"gum_high"`
+		GumLow    float64 `json:"gum_low"`
+		High      float64 `json:"high"`
+		Level     float64 `json:"level"`
+		Low       float64 `json:"low"`
+		Mean      float64 `json:"mean"`
+		Sd        float64 `json:"sd"`
+		Seed      int64   `json:"seed"`
+		ShortHigh float64 `json:"short_high"`
+		ShortLow  float64 `json:"short_low"`
+
+		// Tolerance The numerical tolerance δ of JCGM 101 §8.2 (two significant digits of u_c).
+		Tolerance float64 `json:"tolerance"`
+	} `json:"monte_carlo,omitempty"`
+	Notes            []string `json:"notes"`
+	RelativeCombined *float64 `json:"relative_combined"`
+	Terms            []struct {
+		Coefficient    float64  `json:"coefficient"`
+		Contribution   float64  `json:"contribution"`
+		Df             *float64 `json:"df"`
+		Distribution   string   `json:"distribution"`
+		Group          *string  `json:"group,omitempty"`
+		Name           string   `json:"name"`
+		Relative       *float64 `json:"relative"`
+		Share          float64  `json:"share"`
+		Source         string   `json:"source"`
+		StdUncertainty float64  `json:"std_uncertainty"`
+		Value          float64  `json:"value"`
+	} `json:"terms"`
+	TopDown *struct {
+		Combined     float64 `json:"combined"`
+		Expanded     float64 `json:"expanded"`
+		ExpandedText string  `json:"expanded_text"`
+		Relative     float64 `json:"relative"`
+	} `json:"top_down,omitempty"`
+	Unit      string  `json:"unit"`
+	Value     float64 `json:"value"`
+	ValueText string  `json:"value_text"`
+}
+
+// UncertaintySpec How the analyte's results state their measurement uncertainty (GUM, JCGM 100) and their
+// conformity with specification limits (ISO/IEC 17025:2017 §7.8.6). The budget is a product
+// model: x̂0 with its s(x̂0) from the curve (linear and non-linear), times factors of value 1
+// whose relative standard uncertainties the method chooses in `terms`: `standards` (the
+// largest relative uncertainty of the standard materials the run named for the analyte,
+// certificate and preparation, fully correlated with its stock), `preparation` (each
+// volume's tolerance a as a rectangular a/(√3·V)), `repeatability` (the sample's readings
+// inverted one by one, (s/x̄)/√m, ν = m − 1) and `recovery` (u(R̄)/R̄, not corrected).
+// u_c by the law of propagation, ν_eff by Welch–Satterthwaite, k = t(0.975, ν_eff) or 2,
+// U rounded to two significant figures. The laboratory's accreditation, regulator and SOP
+// come first; a qualified person reviews every result.
+type UncertaintySpec struct {
+	// Approach `bottom_up` (the default): the budget; `top_down`: the lab's top-down estimate; `larger`: the larger U of the two.
+	Approach *UncertaintyApproach `json:"approach,omitempty"`
+
+	// Coverage `student_t`: k = t((1+p)/2, ν_eff) (the default); `k2`: k = 2.
+	Coverage *CoverageRule `json:"coverage,omitempty"`
+
+	// Limits Specification limits in the analyte's unit, at least one, and the decision rule.
+	Limits *SpecLimits `json:"limits,omitempty"`
+
+	// Preparation The sample's preparation steps whose volume tolerances enter the `preparation` term.
+	Preparation *[]PreparationStep `json:"preparation,omitempty"`
+	Recovery    *struct {
+		// Df Degrees of freedom; 0 or absent for infinite.
+		Df             *float64 `json:"df,omitempty"`
+		Mean           float64  `json:"mean"`
+		StdUncertainty float64  `json:"std_uncertainty"`
+	} `json:"recovery,omitempty"`
+	Terms []BudgetTermKind `json:"terms"`
+
+	// TopDownRelative The lab's top-down relative standard uncertainty (within-lab reproducibility and bias, ISO 11352), used with k = 2; needed by `top_down` and `larger`.
+	TopDownRelative *float64 `json:"top_down_relative,omitempty"`
+}
 
 // Unit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
 type Unit = string
@@ -17243,642 +17554,681 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P1fjxtJlicKfhVb9i2IzHIyGKFQKsVAATcyJFWqS0opI5SZPVPMolvQjUFvOc2Ybs6IYGVq0XsbGPR9",
-	"7XkY4D4sFri7e597gEXOYt+ysW8X3Z9h65Mszh8zN3c6GWQopMyaq8F0pcLpbv/t/D+/80NrbGZzo5Uu",
-	"bGvwQ2uqZKJy/OepLNTzdJYW+D/wJFF2nKfzIjW6NWi9nipRmDdK37MiV98vlC3E9wtTyIGYmisxk3rp",
-	"nluRFlacL8ZvVCGmJkusuJoqLSaLLBvqdjFV4nyR26ITibnKRZLLSdFNVTHpTotiLudpN5eFymAcXR5h",
-	"t/9pT5wpXQijhbpU+XKopbZXKheFEdKP6CotpkKKS5mlCQ23N9StqGXHUzWTMKuZvE5ni1lrcLB/+PDw",
-	"s/ufHj6MWrNU08N+1CqWc9UatFJdqAuVt96+jcq1eWWydLxsXhxcDDHHNyIRDxf9/v0xTgL/qY6ufkfP",
-	"rlKdmCt6GA9EjO/E5eLBmsT0UjzUVo2NTqzgZYM1vWeFTf+shLlUOS51riZplglYtU4kVO+iJ+KDfv/o",
-	"6neHsZiYfKgf9Mv2paA23WLhXggzEQf9fn215rIoVA5T/NMf+91H3/326Op39I//oeWXyhZ5qi+qK3Wq",
-	"ZjLV8HhlsU7dQAp3pMRMLoUtYA5W6URocxWJYppaYbQSY7PQhUpoBa6mJlND7SeTqUkhUh2cuM6RSNQ4",
-	"V9IqS1NUcjz1J0TqhNfLDrUsRBGea1monujDGZPi8ODRnZ6dU2VVw706o/2NRG4WOlGJWMwjsdBFmlWG",
-	"xrcptXiLhLyQqR7qduyb7/oVj4X6fiEzK4If8X/jzpHo01VMfVN3MkdV5MvjSaHytfODa3ol00Kcq4nJ",
-	"lcjhk1Rf9FpRC7YmzVXSGhT5QlUGs6nft1FrLnM5UwWTsJNFfqmePW6+nmP48Z4VaQJdpvB4LotpK2pp",
-	"OcOGk41D+R9yNWkNWn+zV1LQPfrV7n399bPHuBDPEjWbm0Lp8fIPqoFOHItxlipddMdTY5UWb9RStKWA",
-	"72E/pLgwJhHjqUnHqiOKqSzETL5RFilckacqGeqrPC2UsHKieuIJUELx6uXZa3rZFibnt8cmT0SBH6eF",
-	"aOcLbQfCKjXUMVyOQp0udByJq2k6ngqZWSMmqb5Q+TxPdWHFydk34twkqbKdnviDWlohcyXs2MwVENah",
-	"Li8v9Qy0uZiq2RHeWZgYrCvdYL570JssFFOtoc7NAu4b7E7QNy3E2RfH3YMHnwJZgp7MXOUSFjHCmw47",
-	"N9Tl7uOtRhJgkqWQ8EJuVYKPlR4buFd4ZUT7aorLN5djBT8P9UzNzlUuTJ4ALzJCG1j0olD5kZAinktr",
-	"r0yexIJfTJnomEXR6Q11V5zJGU44ElbOgqFi78HEIjFJgdI6SgQHKVOFSgZDLXCWn3xi8vQi1TITxNw+",
-	"+QS6w7Xl4WMXtpDFwkY8W5iEEPFzM8Zu4w5RvTg4jN1TNc/kUiUDAec6jnBs2hTTVF+I1EIDcK4KpWHS",
-	"NE7mr2OZ56my69qbyMyquLIQSD+hcZUHq2FyZjj8Cwx+IA4PDqDzdkyMfhB28ge1jKtLDMc1U7hW1bVM",
-	"LfOPVItJll5MiwG+RZwOpyfhfEwMnD2cfQF0MMd5wBXBfo59g3ioJzLNgPEcXl/D8B9cX3dEYpTFMwKC",
-	"DZ65N2pJnb1RS+gJx2JylcBg4HmRS23lmFaBzjNe4ogWBNqgtcYx8PV8DXcrhsbgfXU9VkhEBkJ6nmCB",
-	"zdHcp+ZKC6PdmRZC4zWjcUTCkowEc4XXD/uP4HbC3pfXOLV2AexHwz0opgpaQfqUq0vzRrllw9f8JqYT",
-	"HD6P5EpakRmL98IRWdrXkszWNrjOe54rfVFMW4P9g8+Q7fi/o4osctz9j7L75373UW806H73w360f/DZ",
-	"22aR5Jm2Rb6YKb1GqE397yJNlC7SSaryCImIsSB3+E0CGrqOeZSd3JaJPPOd47BfyQt1ssityZuHHWt1",
-	"XYzG+EbsjtU8V5epWQD9u1BHQp4j6YBDX14Z+MnP4vuFypflNKi51rZD5vGhCLDQ6zhvvtDvl+++he/t",
-	"3GirUA74XCYsY8JfY6ML3nw5n2cpUcm9eW7OMzX77d9bGOgPW/b4ir6iTqtTfSGziclnKhF2qQt5HYmr",
-	"3MANW84VUA/UShYK+IZNEyJi1OxAzNy3Q/23Zy+/jEBGxxMM0lquhBR6gcznXGVGX1ig32Kh32i49pNU",
-	"ZQl8whdEgMCfS32hxGVqMlko/BW3WnieSRTOUzNYmiVd2yalsOu1wqbV4S/2ajpkKP12S9Vpqxb49UoT",
-	"FZ1iq1bKL2oNsSi+ZSPwNu74idGTLB1/0HOFV0hZs8jHIL8C71dwpc/ThHiDY1ltSUKuACKgrkDkyXIl",
-	"k2Uk5FDTT0DLzKJAHl9EdcUZjySw2rQk0sgDHG8damKunY8n5YaT8hQ3KFH6Qx8VYuaZHL+xZCghoV1k",
-	"KTKzVIv4uuvIbRd/s3Hv42Zu2sxnulC5ltmTPDf5h9xQ17FQ0DOpSij0WxBajc6WYthKKy8NW066LYXj",
-	"5OP+btzfL03xFKwvH/quagnigiPuJTNW16ktPu7Zxj17JZeZkclrY57L/EJ96K3DWwhamWIubFV+qfJ7",
-	"VoyNnqQXC9D/0LL7cR837uOZyi/Tsfpay0uZZvI8++BbmchCnkurxFhquH3nQDnleKq8IZp2Nx0r0rUX",
-	"RQGieWKudITCdnuC8j0q9R0yXKfaFlKP6UtlocWEKfa5GsuFVahS+r7BBgNCv9TJ+Uc5fNOhYXNz19ub",
-	"N35cWqZx918b80LqpXNB/CLCWeBAy2WBZ8p7cj5SjPe4+V9ruSimJk//rD4oq3+RWpvqi6hU8yOvvJtc",
-	"kH0tEedK5ipnr+XHI7D+CHz77bfd40UxVbqAPVOrZqf4c1zL2FmcRYyycSxkUeTp+aJQon369ER8+vBB",
-	"v7PZBVU3KNJBmudmrKwFdvVEF2mx/JDn6VuVZV22NaV6vmBr9Xmu5Bt0/iwy5SyCzLiOeAVszG4ZYHBD",
-	"bSYTpRNgZmhEKjWHRaY+MqEbJJevtV3M5yYvVPJCJal8jSflQxuGkJHcs+KEeu3CKIClgCRjtKp6z4Qc",
-	"gx/BfiQvG3b2rbv+uDbHuGJSj9UzuGrwSCZJCqsps1c5LG2RKtsaoCOsvkfl16KY5spiNMwRRSTA7jhP",
-	"IntqYbOUvkg1WPoSNZGLrBBt8u5AyAIZcAy5lWaqmJoEydc8GMcPrXM5fjMay2w8yszVqDCZymEEozkZ",
-	"LtX1OFvY9FK9CLzrQE5k0Rq0ErMAGTwqAwH2+6X3nczQsMxlJ7NUj8BLOprk5OSCTja11xhP0NTyexr6",
-	"1MyMHatE2iIdp8VyJLP59MabeIwvvY3I3gLbuuN3YJMbmcloku765UzqRBYmb4goOJkqsPRdQTwB+isX",
-	"Of2XDtOlypN0XBzhH+iyI0e+TC5Ta/Il+mQKNbM3unqgny/lTNF4rp/RR/vl+so8l8tW1Fro9PuF4t+B",
-	"m/IEVLbzrK9Hub3jvYfDmqlLldlKsMuDfnAoD1aDTejDfGS/X8icpMd3OOFmUWSpykdjY97YUXJ3s3MN",
-	"22KB3sQ/qztsHNyfO27hpcrTCTPA1dtcPck//ubxj+AkCz4hfVjmiWg/O/lm7+Tkmw6FikHEIQZE2IJC",
-	"SbSZYdgEuth64jGTzoN+JCQoAOLrM/Hk1bE4+7b72eGn4gWSTvFZv99/PNRjmaXnzCDD7unWZPLc5Hj7",
-	"7lmmucIqDnI0VxxgeBdL/NY/Med/r8bIWUsGUnLWHfgPBQh51oPhESYfq8hxF1vylZ0Zyer03p1L7MIN",
-	"tvh6Panf4uMGQr/FV41kfovvKkR+d5pcocINJHerEVQI7jZfVKjprYjmNsRxh69qlG+LL6tkbYsPdiFq",
-	"IKMTYcsyAy5ZsBQ2kjgr2klAtdbTKxT4bhzm21Cn/WO4UbWj0XRg196b9dcx2kgsNhOC+jmpnsTVe1jZ",
-	"s+atXz1G4QXbuIffNVFhdzzq4Zw2vdDYEEj4uMC91ka63+89CIWDXr/f3284Y8daZstC3Ujtq/SaImq2",
-	"DzOKWt8vpC5uZOc0mK/w3bco4d34zdfwTv0U4vj4+8ZlDjvaUdHSQtLXEGvkPKJefqCob1DWwdgB5g3b",
-	"E9+ycWj19cKFLQ11eT+hDSshZtNiUORSxKkd+cijWJwrDOyJy0fkPKDQC4i3TotCJay/DbV7T6DsIY5H",
-	"13vHo9R6yQa+LSc1NnqsdOHCYGE0ksfD4v+zs6DNLFW2EmtEGQWiPYe7pAtnIHLCj8ntPTFTUotnZ8K1",
-	"cuTEhKH+tP+Xf/jP+wcPxG8iiFydGS2enbzqvjgTc7zHIFNMcjMTMzUz+bKD883kxQWH4YIlbqqyhJzY",
-	"tBcQ70RBUakV1//7/9QX//pfRJJmC6SM//pfxISEOpMtZkr8609uunJmFrqAB0m+FI6OuHBLv89DDSet",
-	"jKyHYUBkPJx+HkdFuJPjca6StOAVztXFIoPf8MOzl69g3mqoMYzuSMiyLTFXuTWaA29c3EWu7CIrSDys",
-	"3tNEjdOZzGxDbgQMVRSGnEiYVONeRpeSkglsXEl2CkHORtsLqcx+f3PMPtyeQuGqjTJn8mmgWpuUGHdr",
-	"Ru6G7EZ5UjuiEzmaphfT9TJHKDH3bxqSbxNY0J006fY4v1Ea+8q9eUZWan8Mb73CZQvbU9yoFZyNEZ+N",
-	"1XPmFKT7EBCvtIjdKcOIY4ob7VSPVMi39hvTQFbp+SJJiyeXagtqXr0gpYZQs3xPJUUZJ0Yrl+mUL3SP",
-	"YqaTOBIxUtsekdrybzmf5+YyfJIrGKZKMPipZuWPYARNkbdfYoT/RNSyHyQ01NxObeNlobpFOlNN7yaq",
-	"kGnWLETOZV6k40UmcxuJVI+zBZrtpQv2y9GrKK3RvcYo6JANy6LlJhi1vAzGvX+3bh+fm4sdd1FdujzD",
-	"rdSZ4LSs6DO1GXDLTWM9kcg97JrDQwwCCDMedJ2wrXzApnEU5BwDDkI5PB8c52mh8lQSs5svzrPUQqjA",
-	"xSJN4OMGo0GVrwx1lbGwSQH4CxiBxTxXY5UobIo2V5wvG7jNUPtUqkxJy/4av9Irp2uWame0W9UWUZXc",
-	"cXthCxeFSlZX+im8TolmKGJA45DGlyWCAyzct0eUhoFZNipB4oN94crEdCRjina7mi6Do31uTKakrl6b",
-	"lTlnG3JZS5sIHgUYkcw53P9IaMiyq81gKuGoaIzmvsJ/F34im5SyPzqaHrWg2dZ3m026304V5laUNn5O",
-	"AkOZgIYC5DpRVRMvmnevUqt4RqGNd3XVttEVKgYG2qJgmYPGKICtcSq58h5Fn6XlFF2Qp/AeNZJOCxcG",
-	"9M81G6hsIfw7sCczJS1eVpQpwz28/U41azDl0NwZ8+sTlfeiqnLyGm0ktOWCN6UO4s4z8wmoFaUcD0Rc",
-	"KvnA5UjLj6OhjgMNH36pK/fwzOvni4yyyCIRe40cG8kV/HKpvLw3Ip96JGKvoONXoAUtZDYCJR0esCZu",
-	"sZWZ0aYwOh3DL0meToq4J4Knou3XDMgen5SO4E2wpDmRRlUYICVwYMZFthS+EQqnQZ3H5G9Q4ZP6QvVc",
-	"hxhs5XZJyEKk+kJZzhjT6srnitrMzEtuQPdRUl7f2WPvYceA+TKJCH4ttbaDvpgZTFQbK10MtZNDqA8b",
-	"lYH33ypbXIDySYIJKamiTSmbv3/yWuxd7u8VudKJjTs98axyx8VCZ8rakGZkKWXiC2mH2i9qxJcwTGPk",
-	"7HyF2fRTqcV+X9TGOdQYkxq5fqiBcqvaRZlV7HQ7USORkDQQe3V6lOpRIgsVO+Jb3YyS9uYLzTELaOl3",
-	"DYiZRD6c2aNg1vesiNX1HK6rP6c2ZvqZFkNdHXJ5vkzu1zLCUSOxhTVk+75ezNYY0qomtAbjWWj+4uvV",
-	"ilqhvWvN3QptX/hWcLNKExeOxJ39VtTCQ05EqrrUSJv0pcovlEZKBKJGakEJnOdmkmYqIEpMh6PWdRfm",
-	"3r2UOe4CLAKSqReQnMcLQQ/cauBfz+X4zcvJ07RwD75YXRV8/rkcvzmprAw+Pj3zq0N/8xKd8aye8ALh",
-	"j8+CVeK3aalOaaXw2ctyuWi8wZrhg8e8cPiH68c+049p7fDxSWUB8dErt4qv3CJSplBprWmi5s5jVTPr",
-	"sA2jJCCg+t1gUwQ11v+/G3RKyGBKUbps4KpXpmtTsJSM/Vtk1ARahyfxUmY2Ev3eAyC+/d6jR49utHc+",
-	"evSoYvF80DyqIjcZxmHYHS1/Z1N1NZU5SuvQCMVQWtF+dvZSPPzsYb970HGygM9+gpjbLNVq1edF+hAa",
-	"Jbb0B/AXmbna8gPcb7Xly1cy12AC2GFA7pNtR1STcXh41XZqA6nMOqos2nelMMWCTSD28kafLrJGEafk",
-	"gSAutv2fqhAy60XiJEt1T5xM1awnDh6K9v6jz/Y74vDR/c5AxPvdAxsPUUAno+K5WhqdiJ//5QDYdZsn",
-	"0DmCV+/bGANw/Dv3xdnjIxEfQCOiuDIgIWirxgsgOu41z++xRTxoRyI+7R7SNyL4JILmh1qem0slfovv",
-	"u+g6zn9XmbkSf/mnfz6gng+7+xbQWha5WO15qH3X+2HX+/3rWBRKVz7h+CB8G82/ZuKFlyo3gyVrRS1Y",
-	"jlbUOqC/YDqtqAXjgd/611tyBdjUfWoB/nXf/evAPzs9dP863Pfv9a/pZKzJdX45l98vMLfeqkJQgrJo",
-	"w/399HCRl3d6DiRDXzijlcsbf7B/sFUe+ajbCGkTEajIrs4IZ+knS5P41ssySsIgbVUZ5pclHPIMhOSx",
-	"UZNJOk6VLlCCrkoFNibteGwuZZ5KPVYxxvSo2bxYRiQg09W2ZJ3SClqHbvA9uIyRiFlvRPkrhoghRoWI",
-	"Uc+wqHUPNWjdDRZsOSZ6MZJFo9ZXim6gKLu3q7xikylMlv6vld/GgYVno/bq3oNvcE67edabvOrhzqxO",
-	"/JkWM5OorAsAPAx6kah8IIDVyFz88bwfifP97yJ+MCK4D/FHfPb9Qia5BF2W34vE+cF3R0Ib3eUGsHUL",
-	"gnX8Av7JppE2y8daxNpoerfnM71H+GvcqcR6bRcOwAajB00LsV6OOGmQHhC9ilQj9GA4E4CXKrbyaket",
-	"8tA39et+A+UgT69dx+GuRcL+/F/bf/f/+3/9w7d/1/nL/+X/8/P/GxxEV7h6wXu0c5Ulu7O127ywZMne",
-	"fLE4mVt6lyL6JhHsY/s7lkyasLlIbhaJusgVeBAnYpIrlZhZJDRwKzEPjDWBQ4nCVkeXKreNEu/rwNcI",
-	"N4PeJwLl1T9CqSicZR/f39vv9Xv9Zis9R10ZfdOFfuJffBu1wC1pm6yW4wJ8HxiOSwOh4bGxTRtna9s6",
-	"avJpWjzN5EUTJZkqeZkqW5A2eVNDqGmdTWWOprg02Q4ZIwpxSRrtoz52p+YeSm2R6nFB99c6rWRCqshm",
-	"z2LmhfiNE6K34Dag4t44PPppBFbw9YeKXhLupeb7AVJCZej7TUNH8nrTyJHwwtu66fowfy8XTLTxkCbo",
-	"91fOIoKIdp2bF9OT8y2gWC7Vl/5tsNeatJFJUUigN6OwSBK5lTK5cAOOxEVuFnNITVoyJU81MXObluxt",
-	"+xhiGOMrGFbThajEidUTXgB0QiVVAg1MpFD5LNVEUdoL0qQ5yqrCYju72ufRYnjThE7xpbeBZcYmG2iq",
-	"X/NEXaY0Ztte7l13Iiey/9v/eiV+J7S4wgkLO5aZ2nnk6DO6cej0Fr+PNiCD/EBm2ctJa/DHbejLd3XB",
-	"91WuLIN0Si08dfaXsxIPQ57cXPHBIz8ABeSNtqdwNdm4AYDQrTq9sEYmQL/uyml+V05PQG1b3YszejUI",
-	"r6pO4+uTr1+IsSm1uTWRQd5gtEJNnXA02orMfcNve3LHvO/G7/g1sEPgKR6NpU7SRBZqLTHyb4DNfWxy",
-	"h4wWy0VhYh8+hDrMNVBzbBj931n6Rok2qj5w6shaDUsUyA5rPu5sTbiI/py4UTZRLzdXMA/qZpvfF+aK",
-	"O3dgijJTCcs6Gk5allpEVxR2MYP/aIeWGQcEplkS8rPa/g5/6z9ZvcivHTiVEgvrsFcRjJWAKylohLaH",
-	"bjHmoSFPC0czQqO6Su58VNz3eGqMVdZBnNlSxY4I1NK7EVhMoDPA8HUeIY2dhOVBZAX9XNF5TGqz8tO9",
-	"83kFQ5X2DbEy7PzPKjejqdRJ1giqC4cLXqkSA0v5xRyOKK5UDpaUecHBC7lJFmO4RqmepDotlDufR2RM",
-	"cOuilZC5serm0BICcyMC7kW7VUEuqgLmOW2faZ8TxMJT3bz6TTTGyfdNd7K+jDWFfpWbVBTOKp9HBarq",
-	"xoEOvHMo0JC9MOYNEV5MdpJGSV8914gqVpaKZhgYQVY0r0a/MiLj6qcmH99sy6pZetbET8wMeTvxkKLS",
-	"tL3meS5t2higs+QYBxcwW6arpBqcuYltJH63sgg5u97NnHkxm8l8SfrmPM2VXa+cp6AyyUuiSGMFgnPF",
-	"Ocl+EYHwjBWfhNHqhgX8Y2l99cJeJm0xCoPZmzcrkxgtEb4oZAHEwTEYWcTVgAkajtFqC9r2TTiAt9EP",
-	"pZSUZa23K0EUtPTuGEQUjxYsbdO0gk1ee8Cfp3bXQMNbn5wdbIm1M7RiCJB2NDP5jWfxC2lfGNL/A+jP",
-	"m776Ul0XAUznyjbYVrW5YDzbLPmXoX66g4UcY/FkaNqkOy+TxA4CkEoybLabbHOdiJ0iJiPgJbMoxmam",
-	"SMfwlsDJQqNz6p4V//bfUJSE5EFSPoZa2SKdMUKmHk9NbiPvpvHeccHe8TJWoxJXAkZyF+Z08k1p7By/",
-	"6TqPv0qqfBlUwaUlrN2hjrl9ChSGuOW4J45L7FZb5BL1QVgq68LYyVZse0P9KlfAOZDfI2MnSYhl4YWl",
-	"oaXguIaRzP3raJEFFHmiTzGEAelkhG9ahJJutP3TQq1SGjRSQegjmIzMhFc0zDAQbfwVpk+ZGIzPAe/B",
-	"woMqYFVnwMYIisT4+0VyQXbN9cGNq1ZUjNIkerjyNvwm/b1vMGGZi9H1Bhh5YE1JLhFyWUiRmYva9srr",
-	"1DaH3fEhhcadE87FZCTE+iEbsxWMceQCzGyqIW4039Id56/mSdC+f3jmO/KPnrken3OH5cu+5xBzf8Rd",
-	"/bBhXzZqx3zst6akHF/hLUhl458erm29vFRbKvTFVBVyl3dHGyyYTChGu5iTamS6vt7lGQqPeeVQu0nU",
-	"Bhj5q+uOeLkHTeu1lurTDuxG8V9qtWJ0LKG1k1ReaGOBoEFmTfknXLVSLEmLGkiiaGtDHgOTgwKXG0M0",
-	"s0J+0fKEL1DMTR9fcUFXZBjahKNBJLzR0RVcepgU9uuJMPt/dzTgjeuhQ1u5xTDLMSXQuU0fNfXoDL7N",
-	"wb1Ei3dt07s1Gp0OubzYeZQ+SA73qznfdr/f//mndm3j0G1VWdXOXuXP3U2spAbuPgPSxLfc1CChdRR2",
-	"2YwRmy2F+8ASqih+sOvcSGleZ4OvG6rRhuWryrhz9E4h1nRw6tcgWDw/Rn80gx1Zs2rBqVu5LNHKRW88",
-	"a8E1WUsYz7y9t+4CwDwOxO7uieMyyBiDL+aEwTUiy3185LN6KGdU0yY6caH6ditquVBdHDblNG0bx1mO",
-	"+RW1euoaDX46LtsPnp76rvzkWcfZNdWrEklyB+EhFQf6du1RoY9RGSWymvVVOg7wJfYMpxTEA7H/YeR6",
-	"EE3c2U1wvTPX7m5u1bv0i24F+NBIHnd1/Nzet7LqHLmld2MDTFmD5ffDWUtDs2SDZbF64DdYGptI3WPO",
-	"0G6KG6BfxATTC7GqRKoSxuDxeqVo+xyB3zEdpIjNIP27cyT2iauQjb53O5Cdfr8Ry+hJGDiygxR7k4Oz",
-	"MZ6YrDTvlBq62ZnvxGkKMaSROGZsK/RnB8K8XoDLFaEaqibteQ03L79pOlErsQCgCY0on7XspMkAWn+n",
-	"MsyKY3urAm7h0MPvAws+91gbZJBQ23xp/InbTnlasxfb59dXNmlVFXNHhpkadhCJ/S4E1iaNYR5HHtZg",
-	"9cv6RV2XYd+cN756XjYuYFDbZ4clLG/QVraG2nZVTRk8p/XptPXzu52L8LW6Lhq8g+QWUWRsZPyzPNVv",
-	"hCzEuSmmQmnAlHSrWLo8AXGIK15CZD78m+O5ZK74Uy+xV+7S3YzXBUNBb0FHdftG7WI17b2Lo2tIGQBO",
-	"w0F7sh6yZ8OYPREnqP5rDrkbEbuMB5QygM+4Wu3MoDlXajGV2aTM9y9k5kJzOC+vGsUHBTbjiboa+ctn",
-	"RxOTj+wB1Hnd37N/OiB3OfrUyfY51NQzDhsyjCkPzy8eDqOa4IZoSb6HuBrS3zhJ4PhNw9pST+Dlf8xN",
-	"o533W9cw//hUXZ365p+a/OwA6bPzWqzNcpYC3A9YlYxMOla4qqwp+sNTqmbGYQYyabarfqFkVkx3pAml",
-	"COlWz7yhg5gst1wa6vflH1puCKf0cf2Uc1dNh/vZ2XbZ9/WTT2A4AdxRN7CvMQpQmLu6EelnVXApXx/B",
-	"y1vaLDYk42/GedkOX2al0Y1ALyttbsphz9UY8oaXOzS3qz3HZ8nfEESxMvOK9aO+MbWhl2sSLHmQns47",
-	"5IfTeCRLUaIpdZFBUBA6yykmkQtIi5hSRS74P+eTWsvM+fRwq8Sc7+q1HvvRp/ffNqbqPNN/T5hG2yE1",
-	"171aJeLaVtwvFLe+a4Ajewa+wFycnHwDECDUOtRoI3cWZ/MH3n9WlrBSMkla/BGFVKXJXQ0tIByJwNIl",
-	"MT3hvKLvxyP+OyoRxpgH5gvdQVO6t4TcQxBUPBM9xmCqFGPcbsSn/pO3wDVojZrOHnNzX6FFZVaR+7Xt",
-	"BSC0/2dSv7GdiuFMWqf6bknc/YH6WxzPK2qg9vQptvc2ar1JqYKU6y/Idghvcjq+hEvM/3veiiov4rhL",
-	"G4D7k3ahFbX85uw6hZOyk7NyMOWVOfkm/POk/ufnraixrc95gP43gqpceXzmJuCffHXCz77DOHf0zOwA",
-	"VrxK2w1pKzebs97xfN5018sIRERXJMyekBFTQVSye5gJ1//Fq443CG0AW1oGVmRpXgM+jUg2Ggm8p9tl",
-	"8MDnshhPb6dc8fCr6tXtiO/2Gi7dA7uD+9jNlA9eDcn8Bq2uttSlFc6No2mdK+3foDTeEGlHGI8c1OEC",
-	"41C3Am0C0gSv6mr4dralairfRmNq+eaa5bBbn7Z3Omi7HZTtF7Zc19T+Msv613Gsn3HW5o46SzlRn/dZ",
-	"pmOE/ljKmI7PCbizhAWLRJyZK5ZTQLiNfUZzg/uevm6W9m+CU2jyT6A0beZKryskzlNKreC+Ocn/fBmM",
-	"GxoQBAvQ/u1f/un/2sFa495osy5MCwXu1YA5Hw4xzuAUU/V25Ch2OZsXpoDSPyvrGC6gW7zVNfJWx21Q",
-	"z83VbstZt/shjgRjSzijsdvBpiP4XBaKDvytpP2t8tcduq60HlvsqDRN5Gqs0kuV3I483IqSJYHnZdNX",
-	"3kOzlUexbjgOpKMtZaImv1ZJScoWGzeyTG3djZq8noZWO+f/yGSO+FEWWmwy3TVYOm4RcGPdgKtjgriI",
-	"0DAeiIOESsYvyCxzCZfu99vAutdjJGhUjat8G2idxw4k2MWc6sJHZDPMTkR58/UENIu1UeeFiMd5WqRj",
-	"mY3QwxeDBuzOQ2cTRF9ti1wr4824SoD5s7//2eH97oFw37i6+xPGdyvqmEvXo/HOMVqVWd1mHG4RIrHc",
-	"vft1SLGQBVRM1ZIyfdxyosJ+NV3CGvfWAM/WwaDXT4d1K0EfQQU8mhis484wmJlp0PKfnXwhvjoQflR0",
-	"1CJxv3f/55/+/R/3znbv5fu1vTSd6kjs92/Xk00vZrJZPPC7/+//iJfG22jxvlRT0WJsZ4QJEsC1twTH",
-	"CL7aXrU9g48+x2+aM9P+/R85B1CDWYoz7zr13LkiAPHTyfpczPbVNB1PqUW+B5QdfQaVLVbFgqRF+7dy",
-	"56J1RGH1PG/E3HxuLtJGhDaC2b1nIb6bq+MEBkpnnXSmyY2WyRc+GGcnGcVBfN6InFwvErQzgDVHfJC7",
-	"JQxmWJkKFjIZWZVNRmWmeXOQBJyDIl+olSRMbMMKaKRLjVCCKYBfddVSWcL/SuHwTDrNwmmjyWGLKhbN",
-	"qD6hqrZNuO3NIC3BOqIAyZ/sAM8StroS91FLz4QeLtJLpdfApNQQMdfuGeoisYtdiyOqWF3fv5kvVuhb",
-	"ZHt2iDns7KDu2ZYWS7orT2jIHoXx2DfChYqQuozkhRpNzaIpG+VLL1owIUoMx41DyzvjNe8GDcIQvqtx",
-	"PBy8SUMCYM6JqfqEKh6pbQP0bHqhZdEM9e9uY30TPaJu+TG4HjiaVEhWMMHRzfWH2GTTKz+o2NfpS0nR",
-	"PnCpR5BM5J/usvtnvofjstH6TxSreqwT/853twzLC74amflWCYH+65f8/hqk6CCIL9yWm1Kc3ShqacSe",
-	"6EUhd1h/rJqvSi2VmDhFE2ukFb9FWiUdse1pM3V0I+y/a3b9WG9pVbwFpyWrw3YMMUR0n+epHqdzyREf",
-	"c2NRZAKnAMrpM5koDgBH3nG+LMMMI4z+cbHhhfMh+MJhOLmBaGCluZosLNz1xXhahpdjBMrhwUGnJ85U",
-	"IdLCk/tcrZYxgAoFzLmB5XDNm8IAYYVgorvn07tYz6s8fDvRNzS8fhetKZHS7z160GtgyDdHRm3FeMs4",
-	"GAatQmt0vtAkIksNea1dM+kiLMUK+vVQU7HXduyjz7nqVAhtjdtKMbeI3d0uWXynhm8dINbfinHzDazz",
-	"7xdBuxtf3J3Rg9KbGX3BUcZh4KJbVEq3dcZ9MOqToveuAcafPfzssLHK7K2khe1tdBvEiHWnC7zfYCOj",
-	"BUHaI68kEBEmBkBazlUI0OR8IVX6skYe3ySCULY3cmkqWuN9n1TmigQSLIHtEp8HQjKFuWf5U5mVogoc",
-	"akkKzD0/g/arl2cEk0/rsvdDmrzdox87PRG7ZuIBXYjNPdAjxRAqwGYYaR57dX3mZlEoIbW9UrkFWiq0",
-	"nPlYbCijL2J6tSINxQMStN2fXM9NlwPRSiUWkoshQ5E7Kwd3vnQYNo4Oh6C/XIFeYKUy0aZ6NxZvgcBN",
-	"sMgXxUIXKfAhpe9ekGsU4X6lwhvz8mYJrklQ2+jtfOEuf/USxOS3icVS/E6c98Vvxfn+zz9dH4m4glTH",
-	"v/NPPs8/Hurqd/Dfg59/uv75vxLS+WeHn37aPQBq/uUKXmwbbOz6XOUXf/mH//xC5pAZkhQRKeCYi6+S",
-	"ToR2Dsq51UO9ktQ+EPHhPKPhJeK3YMiFvMqks9fehz+v98adP513ogqy2lD/UUbiPBLjSCTfHYn4wRZN",
-	"/OkiEsFnkbj47mioJdgDQsupkAVCHkWC60YwhlHNujsWw0W/f1+JPkEjp3qSkXUoEueV37jeB+euQBQR",
-	"xWGxlCXp5bFIRJ4CLY2Gmp8pkQBxBEyhI4GxMXmqXFX2cxi4VheUbDxBykUNUMtDnaSTCebH4A3vROKi",
-	"Oi7w5c1UAUUrLsTvxL5bicNXz7GoxtxcKT5Y8uefrv90zusHC66u5yMLd47KuriX2vu49OpP7b/80z+f",
-	"//zTdQfwNNZ8NTKTiVUFfbyEI7imBbdty/53jQeRBG2C0HDXySJoMQSbxft7yz8dxJEPlUZ0CpodVNeY",
-	"Kalr0c7UfCvif/AdakUtf3EAyXwO9/cB/i82RnAzwQRXHvCMt5V8YHbP3VCCv1664eCzr4Ix4YOnZpG/",
-	"eu7/Si9V+dcrHij+8eR6fhYOdvXhSx7v26gVQL6sGgOkJfhognuJg/ozyDkmaVao3EYOUK0Mzg58NYS7",
-	"kqW24JJYYrLIiRfJC65D9s4Q7E3JPi/nCrWRJgnDiFw6D7qLNjnCEFUvOZHUA3IOQsNh8a/4f4xrcan7",
-	"B5/dIjD1f0T77/7Bw2YD8Ctk0ruCE90ikzVJLbhk1kQ9uF9vkxwLazCbF2sgUyaLLButNXtlZvxm3Zgy",
-	"Z39f+So32U34IhvNBdRyODbX5uqk/BiDJbwxEZJ29Rb2kbky812AT7CfG+fLra4f6e2sI5WtDS7KAevk",
-	"wUVp2Hje3I1Y0PgSh+cDylu9owefVjvqR9scFi/OgrBmCy/NIln9XnZZwM9R052lOrUFUZcty12YTB37",
-	"puGv07J5+POr4+OyB3y72kvFwHG4ybyBmb7fLxT/XOQLtctZ98vaeDLq8Z9lSsN7xlErA5xsc47iXOVC",
-	"aRB7vM8czy/kQDkJPEZfKqixu2FRh4GIPOMbr1cw3huw0crWt0lb05wZrYKYr56IMXaMkINAJsKQMf5z",
-	"UCsgjnkD+H6Y+AeSJnyEz1wGIIlgUHnb25Lasboucjk3iH6BUWJWFSQZqBQYO+S10XAyQ9UA3V/fx4Og",
-	"49Jlb/JGz/qRiJ0kDIl3spSLMQ1QODw2eM+McmMKMG64SesavKmvpO4i6CHiLpd6PEVnWFVdOBKxnJ2n",
-	"FwuzsNhyPPB1fkLEVIZur0C8YXNoOENvW1DkrnM01PFCc6TayMUA0mBLhaQe9ghf0Yb6OD2swoirWj7C",
-	"/qoydGdQmdVQp9ZDOfoaRW6zTe7Ogj8qpX0H6Z8cT5WNhtqa1dWlNUxrFfCCY9mKWsGpRCG6PEetqOWP",
-	"TPBv8OS7TYd/1nYZmqzsEhK/+vL6jv1S+R7KJ9uR8YD+wfenPIjy8TF0tPr4SXWqtWaev3zc9PCrysMv",
-	"y2UIHppTY4pnumEgbl1OaVnKX752C/SsXJ/aBI6DhaoNq/zpuwrpup208NcZ9rwp2LmBVdw6aP1uoGs3",
-	"1fCbqtXqfeBJ2La+Dlrbt0dhofdvhcVCn+4OvMLmzFuclFP8sikCZA0uTBNi6qgW3Yqf1haiPrmaG9fN",
-	"YGspgge+803cFCpZBa8j3wny8CqGy0opbOQdrPd7uD2Od3EhjfDkyjSz0nadDe9cmyOMgt7iSG9Z7ieI",
-	"t2/T0RFxVY6LO7cQL9fV/0mb85nTILNioz/IvRd8EwBRNoaFlhkKEC5kzguZal+AIJ6kKstU3lxeYKak",
-	"Hu2Y7uwCm5tCc+AdkOo9IkGAUi8JqC25uV5PrVruqpgNEs41CpSl5xTfbUw7ifgWuPMVIHTDYXey6Tuh",
-	"26VJA7Rdc9Vf4uMOzN6vZn0zgvuwehQ2kxXmnLuRlb+mHITNmQevcjWXLiVWzXcFYNBCZun3C1O4wzSX",
-	"udIFRXAs5hhMRfB94tJki5mKhJLjKf8BxHH2vERALUymckSs/vlfwGU3LiSB7jYAk3K/o9k7Jcy6VgqT",
-	"cUurH22sJYxze8dBUBu3HEJty4NlWZldMNpap80nw5xnatYA5Pj0RDw6fPBQzOkNQYHFdnWP1oXooy/8",
-	"CgPycuMgcJl9orxNtney5TVHc64pdPTUIMSazNJEpODR5PNmJhMKFxBA4ik8G8p6bs/LcKpP4eNGTqZL",
-	"1NlVYZRnJeaymDZOh19gmXNtA2D0+bsu6yTdZwlEuRgBW8zxxaSRU3zBg36/sS+7Bp8T+vni9etXgl7A",
-	"OksVHKsHlSLWh/3GYm1FWjSVNT6bmrwQltAxPa3g8wOtNA6VHqwajr4+feZcGksXZxA25tj5ItcDlNXe",
-	"KDVX+YDfGfAJiXutqk31ptRy/NXNMUAS3BBZXzk4gx+2vCCvOXBCpIU4z5V801zzA+1FKm/+vnbkB0KK",
-	"vz17+aV4RR+JVBeGUPpNsoxEvIfI+nvk39X4H8V/jYFa86N4qOFunpx9gyJuTG+k/OuAP5czxa+zs9cj",
-	"eJMh5aYUfprXTStbIqHvqBVcNiMnn3wj2r/pNMpFTcjWiB/ELxfLOeY36UCsc9BfhbguNYi8El5kxSST",
-	"xa7C//VtSppftyI38abl/GohM5Q9zlRxmyTEMErye9cWEhGq1oCVa46YGiPW2KQQqHeUgfQqv0zHAMrC",
-	"wVYN+cxkeMu2kIkWWeHnhCzDlbm4xbepHYGzbJGrW3wM3o8twe/rH79t2KhT19IupUZC7TMqTzAbRgtT",
-	"sZg68zhmWmNBrdJMLglVJizuGaDRF0onIi06NYU5x5Pu6ulUd/Q2Seh3mGjddBWogqmyuyJ4gHG6IeYJ",
-	"CEH3Kk/RvA0kEx9A9F0srqZpRgQhkYU8lxZXStKCny8xCskhW4k2NmI50k486N/nEoGnqsiX3WNQ3Oqx",
-	"rGXnrD9hxzvEdMBifMvfu79fYhMlwKZdJ7XIxGm3VrSnpnDzsh2RyYsuy/uIZJRYjEq4MKIwLqF2kl4s",
-	"cnmLKquMwldu5I2VMlZh8HZBwPMdbUa+o0C6NWcuKNSws+Mxz1OiaztUh9nRyEnxWUqPb49wM3FCUPWo",
-	"oFQyr0slJMqukZarBSkaRFyTN/5U2xYakH+/1vI2IL0khY5ltiZ7aaE1xGRSeboNY13/xnrza/XLlc7C",
-	"wVW3L/InpvkkZkpatFE3UbMgdjYkX+xOC6Opj4DSQVsQSRILg76/QqR2qB1cP0oGhE9aOkkpLMVVZSsx",
-	"KI5EDORuqrIkHmrHW0pJygH/R9xCJBZ6khaUnm1yYRdzlVuVcDK4HOqtuu25aTgw21hYiKTHHN4qsQ3W",
-	"huon8ORbUcuNfGuCgj2+qjTID0/DdvnZt7553MEa9dvtmqZ6tLAb4uiJWCOhhv3U5moNdIq8GFk1NjpZ",
-	"k7AwkTkdCHGupqmvOJaCjohJmA5FQtqCciurCdcL/UabqzWVSzZabUqU31XY3rQQF6og0z7OtL3QiLQH",
-	"Kx4B3yIUC1KdFpordHmeHVEZU9lZQ7twbxqiEhm2DFhft+ukgS6y7EWesdC2X9HIGT5yW1xp13fktrj5",
-	"+pNT/xsH6rCjIkAp/pLpN2ynLuxAXP/v/1MfVhItp3AD0+D23rMIANAJse/h36HhUPzrT3whh1rOzEIX",
-	"8CTJl2KSSw5lpipiBdUPLpkISL7QfiRychFHDssjWwGmG+ryG3ipBsBgo4qk7OViVy/v2RkdVF+7zpGp",
-	"oXbwl85t5LsBRd9y7aYaBNSKZiXH41wlaYG/RzBYsI9imQGdYHba2GAIa24h8jOYI6dIEGm2HsccFI7G",
-	"AnfjYl3luNu5awkXYbS2+ATtHWLNT3ze/nZgu3Xcji2+8s6ShkhP6PzWMs7a8E8zD4XLf/0vraj1rz9t",
-	"iz2NY3qxyIp0ni1bET94nF6mCUUsrK/p4a7xruYCjp+j772H18y3Eou8AWB7D3WD4lxv1V+ZnbY6937j",
-	"bV4u8dK2eXuRNW92oa6bt2PtPl33t+zzuj/azlF/3W+Vb5fnun4Xm26eXzS/725deGo89dUtacIdCQ7D",
-	"Dc7+MLZkNRSyjGn39RfanLDnI+jIeUkmirHJcxrKGu96vUaK/38BV+2u/rayJaehp65e9Kr07TpE1KbC",
-	"EjtotmWk5g6hPjjIRVY8uVS3qlo4nmLcAuLv0dnAlEOUPamkF2dRXFFR2+fPXpxx+l5hhBwXUGAAK84y",
-	"2LMUJBqKscyygSi85OCdgc6NGwl0/1IijJMOygq1vooOf+4trB7igTJ+wfgE/HSo6UXU/aguAzXDk2oj",
-	"dhTB/NCsO0elBoBTjYGZJyImKTLmNlJkqrq4Z3si/v0TSsKkZu3eD/SPUZq8jcu4TIxehaRSiRnJKE1Y",
-	"FKgbOfIdFwnbpZ2xZJXgZhKOR+wE39+lkGMjwtjONop1RZlerwb1rC/MtGr851wzJ6yuFmraMrJsTRjO",
-	"6/AA4juk/mgRU3gCrWy8C5VYZMXasJu7ia9ZOSQr4N+UOcKeMjWi67S9ClyeJt9Q8BANFCeuSYqlv0wh",
-	"oso2my5eT5lUsY7PRmoEf+ehxtvXe6+YSRrqvd9QlikgJzdvZqWnlqN4N38XanJeEuL75E9rqotPD0Nu",
-	"+Kjff7j/6NHBg8OHh/1Hj/ZvikDasWQdHujRmtAvq77frBqj00EBBmmqYdOsssQySKFBCly5jO88vdUA",
-	"q11I2HayGkwbCbLHLCeCWz8pK4c8LMXldzdc5KC23sbIzVo0VrUWXhBctSlMq04jHL1bI+pVeUXjdUXH",
-	"BaOzScICYUJJOz0Qcb7QPbq9hKu50HgehprWwHYiV9rB9mSSxKLNfwmZJGQpkFzSIaZSxVyCFDI86EFo",
-	"Joz9ax6RJkanjscl6EH3UBkdxqOHugFWwb2hB1ULJrqXU6ek1z05fqJ+g3FGbmd7vhjq6qj9Qz/oVtRa",
-	"HfG2JVNhK04X+sSNBh8Qp7LHSeKelIVU4a9vquPBZ0+C4VAjbkzf+iH5w/JUqeQDpGThwdpVbyW5uoHX",
-	"TqUdzczNfmNXI+pt1IJ049F4y+TlxiRlFF6RuZmSYvZuDLvgmVdHEEzhZu3NCR1NyV5oOJ2gndTkKnHA",
-	"0nSdB0y/69HGEee/a0M4LzFLZ/BvMTaLjGrPnitGEoZbrE0xcnlX5Hpoo6xNfhGGgUoq5dmORFwjXt7I",
-	"vwRMgDi1I7MobJqo0VWqE3NFjfqyU94SiGoR+2sxI40/o3xxX7+MGjkKVA+4/85J0CGKAnFeeqxG7nE8",
-	"1O2ydkbqiogI9yJ9j9XbynaPhFWqbKzuH/6ryWTCxnHf8Z/VLW5hiEZ1h1pRy016tLP3BVaukgtFjyp5",
-	"UHzzq4sUfEr5T5UHX/kHQd4TP6jlPHGHtXwnetqU6xQMMMxzCrpfffylOeEFdX8XX1VXlZ4/O3tJS/ut",
-	"W1l6fsbrW/M+VQ15uyZsJPUc6/1Pb0yxxuCi2mdhgOI6Zyp05r5eT9JO1ZgTst8z6ylNlZu+CFXCBh8P",
-	"Pr6RVDuQvh29OwzClKhxSmB8c18MeKzq7lh4tQnIfAtYXv44v2cJaqoZhncXTAge8c3sHDp+7N7e4Cv8",
-	"MoBtb0afXYXvqG2WH1Qgxt9QQrc2vjDFn3zqvgL+1rQOQaj8x/T3KTfxtnxwm0TIu1j1d63DGlSFbYB2",
-	"JXgiV1EttSKGOIB4FYXbT6VxVxaZ+iY1t4veYbVsjV3IFzu6NNmlc5ymM7Wj3dip36s+FZxDQ2ZYZpUX",
-	"Lve7B1ZcyVyn+iIiPGv3EzVATszmOADnJbkhD7bITQbruEuVSO+FwEn476JgUZu3S+9caRQUS2lZeO3d",
-	"kXV2J3xyhklNm4OibuWVvRnCm2A4ryoz325ydHC316MWmoSRhkPqOlyT6Is4f/BNZbxuuXQI6/f3RGTH",
-	"9nJb8rjQT7F3iFJrReXfJ2ffIHnc3vJV+q92SwQrLa67fjPaHj3brIWVug2f2z2V/XQR5LA3BGeS0ckh",
-	"vtq11t0qMqz1JwI2NKnXa6B45O1jJisQtltNy5eZvAlYBc1y3m5W377K4alb5/zW+YvSCG4dDr/cH39P",
-	"b5IYnbnnQ8jBJelo8ETCbwiL4+tFRu9OYba9xU27tv0CYu8foNjfDtb424AW7ApXsLkylmst2lQf/HRx",
-	"22KJt+HLH5JSh4R301ce9+9diKsHbK+HDqxQOtbst2mZX/Vtb0OtTzAviGWc9WT7nvU/WqrnNJNgS8NY",
-	"SKzKAE5290rXf9/piSeQaOQxlqVv+54tQ/EwztNXcRax7wsMWHBCYmeXdF+TObL2LC1I4MBUapVQpCaY",
-	"nBiVCxHQl0IWAHhUnkcGPPafceQxfMFZ1PihSigOEMeIUEcen1wsdKasXS1LkhZlFRI09211TGqH2R+R",
-	"B/0tsNhq3HGVcBOKWUC4cfYIzrI1CXfstOEcP9gN7Maz2g2MtZzQWpLkUVg+iGVoB7mjYiNqUPt28Nmu",
-	"6FzsT9wSwaWU7O4OMWh9oMf+OlF1i+iMNT7pChCDX/0t2rtZ4GuqDxnMbuNyvmOB//dbcDPJlyMXl726",
-	"SY/zJdDqQuVB8HbhYqIFFi1I8mWX8JEFFnO7TWmC/bVgCxRT/u6gDdSOj8jceJngnVvggKR2dMfF2l+v",
-	"dVzRN8AwMU+X3WM+WB9NTvBr7EcUB+a1enUlVKIJ2rHWmbcehTXfbwN44kMdKCWgwfGIzyFQ1GKMvUMh",
-	"SbWIK5/iHsYdTEemWp8Bhkkc7nZ8hKVeoDVN0JA7nM2Vc7Q6iO0O0ruUm12R2m7hCKj6IG1zVCtJYTTF",
-	"ezbwdJ7ncvxGIVbl0pXlqOZjWdF+dvLN3snJN6VDlWWqR/2//MN/3t/vi99EkB2x54TVMnG8c0SHUQr4",
-	"HqvDRE5so9EImzqPBaYX+dIgKAkGvtgSHJxM0pBVwU3gL9oMtZkrsIxW0tgwx6yNo4hhEzNVqLiDOR6Z",
-	"wa6MVlGlp8KYnjjGIeNQh3q/L3y0ik6E9N/COzJnoRDqUo7NbGa0mCM5HZN59smrY3HQ7/c+66JxjG6l",
-	"7ZAMKxFYYjwNgTyB8vLF52DE0m/cFJLq5tVgNDLl2RBXKYbZQdkkRCNfaJiGStwpCPzWaWHdjJuNyeWJ",
-	"21oWeuY+aZAaD3bESPQzroyk6Y5VJLBdjc18wJyLO0hRKv0WSjvF4/3YpHeKJb4BZ++4EVOsmsF5IS8V",
-	"5oJicC0qdzHGj+0Ojncb0Pgw1ng7FkvScSN3dQWG6nHEY6wvkJtZ7w7Dlf3t/R33+z7CkwNkQBegDCHw",
-	"ZVwORKw0RN44FMEyOGgHBMEbwpiTGyKp0wTDqEnBx/yFiVJOLEnvOEzUyTi+ztmNZOnsBIj3+wzIflfE",
-	"ws0zrmZF/7rinO9CYbvzyOatLGpOMOOgk3cOQK6E3t/g6QvzeeBCUy4/7K7LwcZWtvcBOnG22uHXJ1+/",
-	"QGQgZwBkznLPNlTRjyjRXsSVnyAMt7ouMREkDz6O4lGqb456vF3AdNVSFGrv24FU7gJ/uS6uejU6vHYl",
-	"G3Z/67qnofzy12jh2nQbG4GvdzJqUe/2dj6JXc33z2WhbrDf3w3K99nYEOBeEHNuByV6EC7NAA64d3sN",
-	"fNQ51g/ZtjAedHS60NYhC9ED6uCU2sdH6HmyPpAcnx1TRzDeKq3cOaTDCQrzTGJdAiJ45HbgphsgyFBt",
-	"uj0KTon514DnR9pzc3mhNdnGzSExvqmNGHr1S4Pq5PuYWbo5Y2x1JaS164ol3bBKbCxwCH+75r0jFQhW",
-	"j/NxeEC19ndbXNLdN+Q3MTuswNLwV/gD68tHol+NYFhdBW2K3cpGRS02Yuw4PP5qx+HdtIVrBUovSDZD",
-	"7vg4byc9YhjzljSJb3wVc2clxDmkOmUPqwiW/gCtJGq5hS5PhNsvfwGjkso00un0YiY/lzZdo6z9+z+6",
-	"vXp28oX46qB9etBh/BLx/OVj8Ttxv3f/55/+/R/3zlBqev7yKyip2KdHUE0RM+hHNqEqO+LscRmYW6Ja",
-	"ajNDgBaECGxjPbliaqwaajSGJs4VykCBkEdNgIMj9PpR83bvL//0v1y5zHJsHNrGjA16exWGMHKDqhRR",
-	"FOlsjikXhDjYVgA8MCzxxGyaLGQGnzF6EH0J9WtE7H4u5xx8EA11uQrlMM0EJVQeAdTWWRSGE0OcIXIg",
-	"yrUMQKvyhUYgmHgGqRIOJMCiGj0zuWIIgxI0QGWwrivrV03mgP7h7HCHWNCt8j5xcTfR7avY8mk7pvbL",
-	"B59DT2dJ5dlz7BKqrWa1X0656zNKFPC5XrvXdCiULiC8wPHh9aXmcxQN7mGZePSp89fCFmmW4R5gcOVU",
-	"2jXF2113dioPHny62tvZF8fdgwefivZUXZfYsVIbjYCwiG5nJsFgMIw0vdCNKVnVSPU1fHQbbXR9ScGZ",
-	"1OlE2WKNre5VnuqCzSQRYtyiC+jr1yfksDcwK1D40LhCNvXpYiY1YlUBORRUqHlqruy6aFVutoq36ATJ",
-	"sPQy6k7peZqlxXLXqssvqJNSeqz90FSU2X9T7RjTy3Fd1hd43GgHgY1fC+/tcAXSRLTLkrv0EQa2rsMS",
-	"w1abUbIJY90ftQGnrcZgL8T9IZMiLgBkzdXSWVmTbK6EQU02GhO+fn2yvXnAtzPCU9W8OFiTlfDVC+eI",
-	"zOT5PUth8H9GNwpg0t+/f/9R6a2B5/esoBq2Dg+MMUeQQhutqIVUU1Yx+T61KShoAJ5//fpkwBB18Enl",
-	"5vjS6UilLW5RWCQVyqP+cPi2S/84KP/x2v1jsPKP9n/88Y+/7X638rzTWFAVRj+CeTaeOZfUK7NNFjr3",
-	"lt7JWF5+db68WSVJk1b1sIYXIvJlGysXrCQR4XFbPTLhKqzQ6miFV9Sp3xrpimjBLYqa+pzqHQwZ7pMb",
-	"Q0aCxjeO+91zdd4xp8iPxGX0lOlFKz8FmUa7FUoNWMgK4DIm8CMdcySuTJTmBLXCqmxy5CMZmNLTa1IL",
-	"Tw6hFelNo20CXLYLXHVyZbw/BsYbuZaPVX9vYmf1Fla52pblZqNN/K5aELepMi0v2Bo2lTouJdosNztu",
-	"1emFnIkE82BrJkF4KBe2TpSrJEJaHO135Do4X8Lucjlc4hZ8kFaOAmVn8xXIw8xEbHe2IMRILc6VkNpQ",
-	"8W/kCCVkbKlLgGWL2kit8Pi3dBjJSbWkyYg2+u8i52erWeUpNKdTmZAIKvlunhNY041IUkqbnxtbeHUE",
-	"NA/5RlWXODzfLvk6xJDgwd3yYJ/RqXBJyGt+DkEi1rxy6oaxriSwP+Yl3WgkoYHv7q6KG24LgBX4oVBd",
-	"+4CxiKV3g3pedU9sjieqhuV+gJDElUW9IbcwePn/IBF1kce5QMJ0lVoKsvNH64MWIrurA/aCQ+53TgLZ",
-	"Jc+SZNP1mZabb3uy7geq6LcbuO1tAlnU9VwivMZCj1VeyFQXyy27o3wDu1N3zoS/Tdi+274/wDcb6Vxm",
-	"mmFS52W5ul1qn1ZK3DXYvl0Oxk4z9x+BkXNd+AOCfNS3onoMF8TwO3v4n9JkCp+QoV15tMtg/lvG9NgF",
-	"xg01h3T5gntbHpC7hxlmCA72sqy42R38cONK0jEJplg5wdXDsr3fu+msVsxUXEfBpzdRKYbxm5E1pXuf",
-	"i7EjDi6e8i0rrnCbp66XVuSfnUEnwd/Pqd2GMd9Cca3kau2Ui+M6vVHKKLvYZt1vme5X0ubtuHrI6lbY",
-	"+qnjw5xn5W48xAC7f5dpYAWnXrn0rXu2F7KEXaSbFV5x2+jydcygwQZZUpt7VrjvRPCd+Joxfmvju0X9",
-	"hV+M0dzBocDFKq83lxdHtc4fhdSK9goJEFB5qdML2FtVb47eG7sL453fF/Pb/niHHOnGFahwqJtObaV+",
-	"rIzQaqxkAjLe18hC39zirDqet2VQMLz9niiJZ7Ib14HCf4/KAntcgLHey+2TVjay8OBqN5H514yMX0Ob",
-	"yZUShbougrqvR1wPo8hNJsZTmctxoXIgTWM1L0QhzyORpZqDeiVCied5Ki+UyFWxyDWXSqlapqo2rdBe",
-	"/6fh8Lrf78L/fgb/8zn8zwn8zxN4uP90OLx++PS73zaa4l+D+nBLgIRbyPi3AR1ZEysQvBAoQqml2jai",
-	"MB40gy2jjN9X4nJtH2Ky1nVmx2a+i8kcXm/qAMfUPE+rxrkqeuJsaq60wAgBUEGPRFqIsdSMIokl6zDX",
-	"YsvAUeoxcuUyeCIVabPxGsBntxRxII9mhC783GRr6AEG46W2QMgA4udZOoapTk06Vli6yVos1EMbDuk3",
-	"YDDEzLYy7I/uVRjpJ9rOsHB4cODh/NOi0xPPfOkvtHTSZyIlOyPc0Vyx2901cb6k4BCzyLtqqSwVvV3N",
-	"areqsIImDmb7EfWyLkNopxOfMsIcVh+EgeLs+bAngnKk2uU34jzFqrqdnvBEHV/mZlBCChawYAM3HDDc",
-	"FSD5wQ0SqfXLcdi/zx2TNbns9Z5F2w8O6bB/uP4ttuQS2q94ruSlKplA7fKKNg4o4k2LnJl6+wSNdYgB",
-	"9w82haQ2wwc44nAHItq3UwOLgLUoMPlsYVVJ3I4wNEG71BDKrmF7nFwkaSGKXKYZslxzpZvqK387NbOy",
-	"QQFYpfoCDtJAxOQC4ELIaH92lZDBH1Vu1mqp5N5QPyb3B3kNyncrVip3FujUxeVZi4eaxiMzdIqrjKdN",
-	"Q2KsO3fq7IKyYIZ6hU9Gd0ehyzNxuOuRaC5IxANpJKq50ndpuj+XVmVclXEj9iD0+7l7+ZZYbFXMmZWx",
-	"UPTeljB6z+nlMA60wetWGAF10eHoz1IidQmFcqZWFDAnAFQPAiyFW5DI0faymguZsHYTB3xN8K0W+JV/",
-	"21U+3/44UgPwTdM4inyhx05yq/GLfKFKKzwBCwtM1p1RlUipxX7U7/fdigCBBj0P3zdZomzBLyB8Daxx",
-	"M9u6dPCRu8D6hKiTNwJOVIBOvKGt3AS/qsHJ9wevMsBwyYLY1U0JE9U78g4Ime+EdjmDxd4xgWpNkLJt",
-	"OC1nnFrufDKJukxxyURbi7/80z+L/XWVsf3V2jXV1apMrUHZgBKbGJbNTftLqzBx3Fi1hZCLK4azhZUI",
-	"gTXDvtfu+KvwirNvHzrLDIYBrcuc9YdSSKZElD5uQ3+0awQ2JQedsBbdGrXykf1+Iam0b2a2jXetDvyM",
-	"e6k+fRb0Wf0lCHJd+enMj6b6w3NDEbEBmfoAKGe7VldSQOObyWQl4naRuUPmv6A6BKmrnNSeeHRZV7Q3",
-	"pJ+zlLAY8GXbWSfmj0L+vPrC7aDt1ptY/Jl0BaCa09ipvKdWwDu5pPAkLSK44/6g7pzQviviXp2dNOF3",
-	"4C4R+rF/18EMB5u1tS5Qg/DdDKMQZFZWEimdv8cXTC/RAcvjV938ylybCBGe3/BWLBZpshqsKbuT4+7T",
-	"73747G03/PNwlz/3D942moe+bsyDPRaYCYs5BGBEi4TqXfREPLvYew4Jrgv+7x/n89l3cc2cxSrWGmPW",
-	"/6n7f/7uh/3o/prxfCPzVOqxgoL+2Y55c99iBNz+nv3TQRxx4T5qTUwWehxmCvnwh7PHAwH2QRHPzZXK",
-	"obaObV93ALGg//NPM3ndvo7E9WiW6s6fxvukQ+Of2IydySyrJIJQsY+hrkQRHHEXcCpkDtkRos1UBawR",
-	"YI7f2+/1e/1O2L34rRjv//zTdSO+ybZFOcf7W764JuGtdj1cDSio4DnebzzU35QUoRb9iPjlRJWkXgZg",
-	"gQRtwzSpEgzZUEglZLRzaeEqTqqJbptYKI/uFX3Ifz3F72nsZSWgD8Do1kOa3CY4613BRbYqZLg+k7Is",
-	"5D+aN+3/bx5jKlf/55/aEzT1gNzJmVqdPf7HrvwHW2pC8QyWj2ynUMJqE2MUuTFFAB5PBGLX8Wy/ktt4",
-	"DcPzuEVoCihEzWsPjPXH3zz+kUyVpX3T5Xf4kqSkUW8ZwbEpF3bbbNemRbwzmIwSrX9FKuTqqrhmJTwX",
-	"Fim3DISzlZk9EBiYON4cSOaO7WrObvUKhVsaJPryHQyKClRFlS3jScLD9eEQtNmS60tuNiqHM+AP/KbD",
-	"9qiFG58rrLsHDJSi4RpcpYFSfFmj7NveupVNrxWvq0/nBmPDyoVe5ZKpTosU0gIAZY7qbY2NLlK9SPVF",
-	"LNon8DR084cjCpkjN0Qnkb/fnkv6Jp/5ZioHJmiyNq9bxPjc5iCF097e/lLd2xuUgWoXO2ztnSCCr8HC",
-	"8TacKwl0W9rFbsUvNuOhfcmZ05XXIkF+ANH34cElMA4oCbeCQL2hdvk788cPGke8DdF3oYTBNjcdpG8x",
-	"aftE6iRNGFNgl0OUXKZWrUnnxHkolw4+nhpj18EZkhluYzOcPS/AQ9jcyExec4Y3ZaJD+lu+xoqRyfxC",
-	"2ULgK6VbqZAZp7FjXiS2JgiScaETtOykVozdaoUSHoMQalMEqsNOBlZTNAoPSyHLHrEP+yadz0l5ITYt",
-	"gK0fCTWbF8sw0L0xA2k2kucQ+b/a17/9rz/+5vTJj245QIbtjmU2XmBVvzLHaEWwbRrdrtP3+AU3XYtv",
-	"/Yv1a1E2UZnn2pPhz13kDzJvw/qb0phq91xJW3TJyGr5AEH5+/296z/1ew9i8Zd/+H/CX8s/HcT8cyUP",
-	"ArOXhhqNAiRj1CHA0ETIVoT2cTZTaSKFKoTMepH4295Qn0xzM5OFuch74nPx8OGhaB/0+wcdcbD/oNNz",
-	"hgo3Nuhwfw+U/5//K0Vay6FetV8ExolrMEjQwRZynBtr6XZYURiRmYs2/jXUZ487HqQTHlem0Ym4KCvM",
-	"l76H3OQrLc4eH3GCsRzq8jyZiSMf6EzCE0dZ4d4GwndUhoESUNwg9qdhZHCfbK8OMsGrb3uuE6ZRhLoR",
-	"nGqXTO0tMHYxg7HJc4x1VsLFZQuELXMVHYZ67RUScmbQx2gsZl4TuJs2FZIDvjWA3JBaTGU2aSJTPfEE",
-	"l4N0SwJ7wRCR8lJakWq/HKPycRwJxCqpJ9dM0mtM+rAlpAhAoeDhHJnJaKakjkUbNoBMTGIG5jNLcZ0D",
-	"8Y3M20s4Nv/+jz//159/+vH/+9OPf2of/Nt/60Ti3/4bLQu6LGA6maZzI+DYGC0yDa8jOWPKQpInrCmV",
-	"sy73LxJpoXJcVvhJSOGATESugFMEJXLdwvzbfyPU36m5cgRb2SKdYSupFrE2miYFKZdPTS5Wp8lXaajd",
-	"XcKbXI4UDnda0LF2R/zscRWhRFOeNtMH+hf/fYD/XfrnS/6bnlv8LwOcVLZkS2HbU7EvaQj+72f68uz7",
-	"vPi72rOVvw8aPvoPtWcrf698VHnAeCr+71cwr5eTFzirkPK+nHv5eyeEs7LesGtJME2ImJw4jXySZlkT",
-	"hjCpxhYwXLZIZHeoRG+jVpXmNPlQ657G6gdRpeuNfIlX5zZQ5puWCAK1JqnKkjKUtgzM5XV7rwtWi5FV",
-	"CIbkaHczO9BKJRS85hhfYTA/uZm5tKV20WtE/dxX2hT8JWQhX0Bh7aHGl2kUVXgiEQezHghqm9YK5Sl4",
-	"GYkBVe7pCQ5zEvcHQgIP5KSnK1M2CYzNaCUSdZErGDN8q1QChX9gAx49EL8RWGRa2LnUFqZAoVzIn2C3",
-	"HvY7Prqp1IYCG8ZB1HQoVw+aR9K4nca5G67B+8nI3/jlzUnT3PLqNcQQhPEiT4vlGcyEZnyuZK7y40Ux",
-	"XT3HMTw2efpnlIwG4nN8l3TfMQanuXA4gVFkdlCJcYtEzNYgBKIEV1JcCVCFNzCuMabS58ilqMpWaiB4",
-	"Lr7uutl2KZqMYbRI4QLdCodUahHTopi33r5Fr/PErE4J+4dYKpUTGLsNY/dg8Mjz5bnJ2RUTGJa8aBSB",
-	"mGmHWlZ+Xql3F5Ejh4o8scBZqS0vx2M1L6QeK5Css3S8JLBuq2CVnD4ZkbCNTUVinpnCRowqHqJ9W7x5",
-	"C/1GmyvgGl8duxrQ0KTUlYjJoR7qTz55wuhFsEmuir4sSMrtffKJOPbjEymI+7P5oggQ7kkGNXqSXoDN",
-	"RYxh2/NUOiBgmXt0NSvgWmqiHvPFeZbaqUrExSJNJMZ2Y1vlutPiwNwKtrgQwvEFSKkc8AtPWCA8e/kK",
-	"qdhQz3M1VonCNp3BFEitWwsCYeCS54mLt+SCXmxRpWIYQ00bypW/eJVLHSdXcyVdYDIIZs4aFuPq/s3f",
-	"iBOjL5XGZ0PdJXwxYlOcHZ4rYbV8o0Zj7PV16p56kKR2TArqQHgjVgwEXgiZXeGG5WlReAgkEjPVtRwX",
-	"2VLY9NpX7ZGZSNILPLVCtOOD/sGn3f79bv/gdf+zQb8/6Pd7ZHn6j3FnIF4ZW1zk6uyr5+6WzFLQqBCU",
-	"yUbCGmiG+Bq+kDBAky0RmSaggHNgdmJRVfcjk8gE0qxQeQ9aOqbPMXkBorspIDt+zVDR/zGGBjPUPccI",
-	"7uIXyHLlige9TztHuC4iU3Lu8aPig/uDB48Gn/bjTpA8wGPGU+SDugcYJ6/lDCucCL5+sF2pxkjwZBmJ",
-	"w35fxN8vVL4cwCbG9Bs+KONOerDdpUnNEvwJLdMUeWYbSI0Lzowo0hfqfeRKgD9MEL23PXFqKEQf7u98",
-	"rnTSRTXTgd5C7Aodc6AcsCMYguyHr1RCrZI1gxxdzEKtiNMk3oPCITEFv8MniSzkObkVzNxiKTwhDv70",
-	"4L7oin3Yed72cZYqXUTib+WlPEMKK1JNWJIRb3kxVTO35bgkUFwOVg2JZJooOUCQE4SCkbzpqRUxSgex",
-	"rwzD8GplAQ0YErxXOnbcy9YARQDRMLQGc6NlPT/XtOZjDHWHpA+u97QSC+FFFZChCA4u0BP8qiOmuCvl",
-	"kGQR41S/xPWm2zxJNczs2ZMnT7oPHxwKMjXZHlEEPpVjmedL8aX8EuHcNX6z5BNNsVi4RYlRZMFT16nF",
-	"UVOwAP5YiQ5w5DoCkVJUTWVU68VFBOfGFB0cPZi6YmcBkXgfU60ynBFLVILkCXdrBDMcuilWtOMmcWsg",
-	"UNyKO3jbTz3WBjcFi8SFZiSI91mGBw0tCWTLgPUbEzIYxkpgb+6UI7vMYbQOXAhpcmLGxNb9mpEscK6O",
-	"+PRaYadmQQ1Rukt6oU2u3GQQ6icx+C3MMuJaRJksVC64rIcVMkn4C9p6JO5mEkgWNnIygY2YZ9nIWaeQ",
-	"47vaQWBOESItacdA7IvCiE8PxfHZybNnIlNFoXIbMTknAtkDUWoE/zOA/+nGEU1J5qgmsfGBPoXzhd+W",
-	"JT9KUgU2ha91ipD/0DJn9UFrQWKfzBVvf+J4HTi57FAfiyy1BZ9GqcVFbq78SaOElnb8+yevsRooUT8Y",
-	"sHvCHDvuYPVM3FekvnN5ASsnYYe0oIqBywEsdk6ncsCKTSza8K6w6Z/VEQmUOCD0kVb0QS4chupGB68Z",
-	"LOR4kVuTMzLsHAiCWVjsHsRRra6LEb9SSbYjVpFbJJbwdicKTHKYAoLMzrpUFnwZ3zyiWdCN4GySQs1s",
-	"VO2u3Kwv1XVxQg87NOiptCMwxMXI2917X0j7Ah52euIPSs3dSvnzwHP9XaWXq2ma4QksGxWYY7BQUPAK",
-	"1xK/llpg2kEcbGSHriB+HrQ6QFs82Edx/bmI14U6cqS0HVf2nkUbPMF8pdFIZmGhjZibLCM5EvrAG3fs",
-	"fk6tMHP5PQSuloHJ8St5odyKHeHpKaZ8vNKxchhbRMHtQmE9MPwXadyUu8UbiHXADvt9PPd46OlY+xCS",
-	"NHc1YduSEepRa6+VVoPT7KJN6uXUUF4vhfUoUBpsByMygG1mKvI3C+8HDumrqiQCjZUqVUgJxxnc4uAm",
-	"076CfONEIEqoY2lnJQfKW8qJZnpKAEqj0gXPhqgb6m5DTfoG7HYscrMoFFtBdlA0jzkrCjOIFRoehtpB",
-	"MVM/AxjIj/SH+BG38EcSLqz4kUWTH4f6x263W/k/+CjUX8WPlQTEHwXJbET8mWBHVYz10njuSuJ1oBWq",
-	"VVCSfsF9hdqx+FE8f/bijISznE/CjxX9rq0NyTYkBXX8kJwYybphcHZsFLYQ8bDLM1hC3uFVjELcRQ1L",
-	"N1YBw1ot/0wfIB4o4gmzqEbzqyr74kdQSW0hJxPcBnhoCRyPoDKjUsqqrSti6wWyi91m5qI9V5xeyUq1",
-	"zMdTsI/dvAq3nTFZM8SP1axeGC4Kzbh7MNiFvaEL1AdI9cQU+0oL0NlQY8HG3GSKj7RT3eW4gGsxEE6g",
-	"VXkpj8OyeYgiPsNDnRbi7xfJhUJDKp7CygdRJTQuWGPfEi9CWgw1LHJ6iU3pim3Ft+guAacboxG0J17R",
-	"PNukkctsqBNZSOJwbjk4LQsorVtq0IZKquBSZsOLO9QM0O+zvdKcLD1lxrRob0rV7fT8epekNEPaj8uI",
-	"VIdkHhgV7gKHhajrQmk40UPdYMwarCR1f/IJSLdGq08+YV/aDD2OyYwc9m7eKB/BEFTiM8bJ+5gTTS64",
-	"Cp31kjS87cw4mSoU1iof6pdzpY9fPRPONugg7Vwyq2R6Xc4cFIXSbDgQf/wuHup2sBKob5qCLSSo9Kpc",
-	"DZrMeQ6vGUMZUlvAUh+7tJJIzGQG9g+4kk7PQDfzpYFSmj4r+7C/f0RqUpoEyd1mAefRLRP2SG/f74l4",
-	"b6pkVkz/DOLnHpyqJf1zpoo8HVu2POyZudJynvaWcpbFQ42mJG1cVnbsVg1XoeNY4BN0sTp+hw5X3EWN",
-	"hp1Hhw8einluzjM1A31pTp6E1Og9fvrbv7dYOItEuaGOX9Fz5/FLNU01BT9KJGLswcZsViIz6mSiMPud",
-	"NBOUlSUpnGDIoKdwkWBEnz7q79NvmNKEx59xuMnqAdkOKNb5Cv5272CvWudLtONha9jyW4oiCn7fOaLe",
-	"T86+EWOVZXh/97JUK7vHYgX+R/FfYyje61g+yMExNrjfBbtEIubTpUXAfmgBJXUY2lTJROEy4+P9jsvR",
-	"4I4e7jkhO+bhlBIijIe6dingq+KOa46kIVI2IhHPZTEdpAkpXDENYvAsUbO5KZQeL7t/UEtUJygoh3Xz",
-	"WWqpejF5dMKlx4bIfppaFy+Tky5nWXLf46P2wl0PYZe6kNeRuMrRZ7+cc4IWKwNB3hBczsN+/4gOjwM9",
-	"AFdxlnW5tXNQ1nIl31ghCeiB/fpOZG47ZN5ChX55J14ONdy5iGAM6NrSGxG0p1DaTMs1Em/UEu0PhwcH",
-	"QMsf9PtkjQaCPdRDX7GRrtKw5flOzErNKE0YBJiCYC9gIIUJrQOZgSP8JUtQqTMllTYmbCgwBxLRdxZy",
-	"Mlg4qTP+uy6bQ7rPIHlFinD5gJihauiCytHYgCT7DeaUMZk4lQUHXFtmL8wM0Dx6vsCKu2bixmZLzGXI",
-	"/IdxoitYyEI86IOVh4yeRyXCBcZukMHQUb+a1HmhCiseoPnVIqRIp+dmLbUF2aEwwfKwJSGgtJGwi/FY",
-	"Uc1u3J+ItW0qxeKAEL5fmEI6tsiXlc0srgLOk9dPRZLLSTHU+J9uqopJF1w6cp52c1koXKwufW27/U9F",
-	"m8KjynAMls5TfQF6bAxL/JwMA0zxOEy6mCpLcCZ4I5gHWW8YukoTlS1R3OgMwoa63BwyPNojKEKW/hl0",
-	"/uC1UzWTqaYQZSSFQ82LaNFLHZESCmdlbBa6UEn9e6ugG9pTKxa6SDMO2aGTkVq2sYM7hk0B5fev0J+E",
-	"VJnwLeAp/lMdXf2OnnHbTqHrDfUryT4qfB3/xccArydXbYhPVZEvu1grOEY5gqIUE39T7FA7FZNWmveM",
-	"Lqk7Mf5tZ2QjiYFmSd9zUrZ0pK9y8TpIqchyiqKSzDJvcumJY7/kVfiDNBAdoFdef1xBvA9YDku8dsuA",
-	"N3eucmDaMO6BOFfTVCdCCw4DsELyyUH3BUHRaL5VaeEuPFkGgeZfKM2BQWBqczeOrP4CImJKUlOLkOFM",
-	"Ps2IuNgT2YcleCR1YDsUbSctG7hA0NMFV8xnsabL4zB5Bwiv/wtDugLDKbaTFmwuFTM553TCbOElXxb6",
-	"0sDtASPidPBBGbVhw6jD//TPInZxPcBP9/euy6fuCcQ5/OU//fNQ48MDerpcbeE/8C/lU/fkTwfBswN0",
-	"RXP8hP/+ID7y8VOH84x/eWoW+SvM7XxQPksv1avn8VFpHaUc3Xi/e2D5HUiu3T9A4+Z+937l6X18elB9",
-	"94DePe0e2nio/ePTQ3x82N0PXz7cp4b712G7/ev4iOi8rWHN8DtcxHHFMc9tlDUd4Y2a8k7LHxZ5jI98",
-	"GMdcsZ4b/+t/4dZeLLIinWeAYx//60/88HF6mSYqZs3jKs35CKFwTP5MvL10DajwA94dKCzN+hpQ74rH",
-	"AG6HdWZPC7tDxasjEb/ypg96MtQ8S/cC/fXkUuniBBqGZ1jrGW4qOELrLogp+vPhwA81+cGcb6YUjsZS",
-	"CzWjUFHSPVAHq1AIe5UWIKVfKrxragZMu+JWwNfAs0CXDJtAEBjpLdjnudTjqfc2Y8ZNZi6GmIySy7Er",
-	"A4wcdr930OtT0aKA+BC366B6EL96ecZm+IW2e2N7CdyDfGynC31iL92KgCCPhoSaeZEcjy6ysB0X6rqg",
-	"dkAGiepuUuvh0zu9Wu9x6ZKh6KSgLWnZX4+2311klZKo1tk5ie9N3LuJKTezWrS+bym4UMDLsBWKgK0O",
-	"h0GIFW4qAmY6w2k33gi8CoPw3NMB71F1fnIsOB/Tyu0QcVipt/pN5d7QWpVXp4dDQMVv9UaRoMScgqZg",
-	"LMnH6JbEnYyENldOUefYgYGI5bm5VCNpl7N5YYhwAYDXVfgIB5PakVkUNk3UiJB/eI+cm3zkyk3GBHdB",
-	"0vmicHZ/5yrEk/htmqsuWElkkZ4DumWVWZOIgDya9CzGLoV2zISJlxVtVKBQAV/h953g5IY8fyob+D1o",
-	"aqjSEqHjGngJCinQ54UpxDxXFBWIn4j2740bquuWscpDt6hVygqtrqCRseGyXdiA03WfIn33pBxnAiTe",
-	"BfiAjz1+AipqTFMCkcm3n1rhjEv3e/tAfDie+X6v37vf6YkvQXoF0o8LOSA/NfiKqDSd4wwx/frH15EY",
-	"YjLGsPUdRIaXr3qkbwpuCY+m8+FR4W2k78DDnumnJh+rHjijRqGpOUZfYGy0ejkZiD/+AIGAbyPxA43B",
-	"9f/2O78GqLufsZoNpAY5IR7LDPVWy3KldkySkCuz9A0ZL2A5YGVnInYTGqDDLab7AadaxIi1F+Py0fco",
-	"pXbhCxDwrJmpoAKPTzqLUbcXbMpZUNSUyiaivfLqQPTBpyNtZUoH/YN+d/8AjibR9p740jBfIawYJYCR",
-	"4/bHpGt7S1Sgfvv0g8JUj+GRr6GHVBvnDAaqKTGXWF0jUYo5BgFDiZZk926jNYWv2YBcQGNIf2AXtbOa",
-	"QmnP3z95DU177vZDmryN6Y0Vndh5ggP558hbrZl6OsmaBo9S15E3rt/gX6AAf9Fg+acBrXYu11nfoZkV",
-	"XwQ3UpkU7U/Nz773A/1jBIsxQF2UhynRPI8DhIN21asKCIF5fe+H8o+3e4Gzae8c4jXigbCwRjLzERB4",
-	"jjT3hpsekRrj4gphS6o+KOyeBJxuGX1jS9WvrBBeifOJROwq+TOnqFbvhxdczf7w31y/Hx4xG5Q6ici8",
-	"7ni0hwigvA3EcYzpL5XE9cOp1ZWYKYwJ6rDPmqWoe1acew/FxBncbrCwCTawIZnBeHKKuyuu0rHqkHbo",
-	"JDVkHhTMAXZVcLeTSfRwj3twIYW2xiHmuZmlFuTXAJ9binndSJwo4DYJzIYocMVM7Ds5cg6le7ZmAXLj",
-	"TXOSESmMwomJgN/qou1pBA7JHXTU1EqKO9erSWlITTK3GDhr9xUACxBXnBnrYDtJtkLzvSBUAQuWSMYn",
-	"lYjOSyBYkBBlMBTYh0MQoeJTwkR3iXYvuPIcvJpDE7myKOK3E8oSgpA/G4WqMzopU7zeMey5vgd6A6gM",
-	"YOJwug4Of0g4rGB5b0vNFmOKAsds+Qt56UZDlH0uc4vYWDgBgiAVbbdAwUmhYGSJ78Hynpx9Q8ZptJjC",
-	"0UJKjaEUunCcAy0JLuyHiLIPp5LancrAZM+Bx9hoosbpDNOtZzPpPAnAKrMlCbqo7TTrNyhiuBtHmOSk",
-	"cCVqrjBCw2h2Zi1V0Rk0UUSuAocxREEECYZ9xWQvuvJRQsgsjS5DYeGzBK9mT9SjnFhFsUFkDR62OwjY",
-	"wDuHhw2FW47HCIVMF5y7c7QwyGy4VSxwYmzMYi4KI3SqWZD1cZjny3KNKIbTBbp6Vlhz62/wgrtw3vCL",
-	"exRhKdrMODi+mLSkTtB3yQJYboDuRZqQMIYsxBV+J1khCOJxwa6ijTKjZ9dKIy/yWDEuUpYXARIOelk6",
-	"Vpp1oeM5EPXuQa8fubCvXGGvFOD+/NnJky/PnlBGA38IGQsEr9wqP29FrUWecXaDHeztXV1d9ST+3DP5",
-	"xR5/a/e4RfwGq84WmaomPRBOGxUPbe33+EW2BrYGLRTUCXFtivkhzk0K/75QTdBofKwPADgVosfoApGl",
-	"lAw7KQBcf4mRPs512qPq+nTKnyWtQev3qviCu6oBEBz0+0Excfhn6DL9e86jIZp4U+4OdUEZIrV54DBh",
-	"NR70++ua8ePae8YuKeQVleSa1uCP32Fy90zmS8i8BsasEF6rkBeY4ehnbqkOonM6r13kVznGNauFpdoL",
-	"6tqdXkH5AfX1PaJXlEgL8v8YDcKCVsWVyd/gFpVWuyJfWEaXXtmTFzyyG/cE7TPzTKa13agnMK0sPPfw",
-	"PpY+WLaZn8faTQhd/Wt3AjRcp9V6OSnQc0BIOF+kIOlj/twWx56b2+3Yu0HusNDh0O/39v3wI/Efjl88",
-	"fx/r/zqUJjctPcVfbEljlK6QX89YXU4QLQmGuizyHCf4oH9/qEvUifquiBgM/zG7RyXlWMQBOfN9pZj1",
-	"hcwKEymEA6wacICTzPkoJC5v11VnoEHiSNoVB1qn9O2VLVsUvg0aj8nQEJiYh1qbIh0ry4ncYCZH3QN9",
-	"UXEQmwSD8k6qSKSQSLKMOFGdBO5MXqy5+6e0K++RHJ9iDqmytum8YveiMLSetz6f8NX9m786o6X9WstL",
-	"maIVZuPRLke+4Vhf7u+hvr72YH/yCSZODj75ZMXhYnIX64Ui7zG0A2K1jUCXVLagGPJIyII0GB8AD6mz",
-	"YAuiSLpYEPgzhHign87lvCVpMsAGXX1illH4Z5SsOPmIDjIF4urgHXOlLR48XzCejSe+aLzrnbV9eDrU",
-	"bbIu4oRjf23TpBOmwIF86iM4MJfLgLqoVd50Ws8wuBMXKURKt1idAlhSC/VKV/5l0KIZtKItDyrn/L6N",
-	"mlurlswvmwySez89bEjm3dhamqxrq6nww7rG8FTUG2rMsd5vyLH+7j1eftyt52Ytr8oRRfxt1Drc5tZ/",
-	"LhOX842f7N/8yddacty5SuijLejEU5Ofp0miMAP88ODRzV+8NuaF1Esenf2F6JinXHRV6jVUgJMENx9M",
-	"rHgKA/JGkciQWb4Sx+mRoh39QryiWapLQkg/b0UJq1njN1FG8knXiCJWa1YcKRxog5gCxoGRHESmxfly",
-	"qCEVMvixJ55yws7YzM5TzQg7x18+PhIxSHYoLKSaTehE9QoTD7U3q0dUocnomj4qIB3FMkx+GZk79snC",
-	"EPOjIOyNcqpaLmgqWDBfnt4JV50B4myJhrSloa4mEoHPxv27MUfpyNn1fabOUFfTgQgUHudcaRq8Eb0y",
-	"GwfzOrELFL2GmjsoU2hW6DhMmTZ0OzJeKZWxHdkJoe7WEc2y6MbdtUmmjjtt0mOvb9dkBUF/XZsljPt2",
-	"jXoke2iweqefyDxLlS2qFyAqrw0i1jeMAS5YZQDbQDmu9v9cFg29q+sbei/MHfT9ymUhrutllS/7ohsP",
-	"+gEQysGNPDpq3qDy9uyVCXCt98rR8YDBFW5i6ZD8jXZVX3DuI3O/c+Z+QgDeqQUbY8C7mfuu490hx3UY",
-	"zjexcnShvgd+jtGkFJs9AXfzM/K8ePQRo8cqyK5V+iJlWIGEYOToyYjtnHHkYB4oWzFXrqU1Wi8u4Sr3",
-	"ueGKUVTB4w9wv9aJy1RI8Fd+pfqHN3/xpSmeIhz4X+kdPKatoCOaFpYwfDh0EM6iL9T1vm/nra0PKxGi",
-	"tTvq0iJAQ3DeeIbyKhNInWKPGYRcYA3Fc47/DLWP1IbwJptu5hod/9dwPW9SaHGZ7Mcr+iu4osHRw4CC",
-	"MRN9dyP5cm2r69Zu6IYbWaY4wzTmxr6TVZDKFFghMb4E36W8oMJjjgbBI66ahcd+NXl6gejmLj3CZRb4",
-	"EpMWK3dTsqVIMaMpds2MzARS6eAb35Bns65IAYZDFeDhT7WTS3rilFuvDQMXJyEQ2qX/CzRKDDlxsFkc",
-	"/tF2gWPY1lAjKjGGPBitvDm8gBBUTh1EtHbUBth5hmaCDtMjvzycaxfPyRYw8mFY1CFHd5lJEM7CCuNQ",
-	"Y3Co9GFUPqIp8jlrbrYlFATaO12EKiZN2MVc5Vbh5NEU5oYGXlxbb6YCQcBrPAA/BVcQqvxOQdXYm8lc",
-	"jrcbBytKQk4wvqcYanJNSLQuIOKmVr7Cn3jpymeyo4UJP92oqUw1xsKf8/gB6eOw/yiidAk+2qPUjvhr",
-	"Tmo8xVyK9uHBAYeFnXM6DUt4ZbqrZ7DQ3pGHmhtqGv6zky/Ei/0+oEwfHHQiNmkECHOAGsf1TYAtcUQI",
-	"5iuO+FTFAxoDnTjEXCIejk/9EROcycXA2PyxxUTTmM+xHXlwqpFWV5D8XYhMSeuM4/gNYzvxPZAZPF5S",
-	"OwAR7n4ZuUiNeOAdAAeAs2kmpR9J5uU9xgAG1yzcggwuUHUSbgiYD2UFw3q6pjo8ilQTULkdQTJjOI0K",
-	"tmHwYkzLR9BzvEsQbhK5Leq4zAYeAfUE5rMR4oaOlE7sSCuVjCiwKR7wZGC4FTIACwAfuii9zFy5OBEY",
-	"3jS9mMLftJ9a5ujigF+wI5gLfg0dHnGeh3AoJTQWHkEkpLAKRIyCS7C4jPmr6ZLCqSjmF8GTYv6qDOjB",
-	"Re40STpE1J84RrGzrBNkH/9BQdmfHaUjZNGfm2S5hWDEQW/Ey6jQ7x9/cCUnWs/vI2+kz1RrcEAdEPRp",
-	"ywf1iQNYtuf3Uc9LNZeZJMx3cZkyfwKakssx8CKr5sVi1qNq19tIZn4xvTxVRVLlwuY1yXD/wyhuYZEp",
-	"zhCB9p6b8ZqaJK9kMfXshz+ORFwTNbAMYXWK0aZwgf/OpNL+FlLpidGTjMtwHu5vMaZXcpkZmbw25rnM",
-	"LxR992CbBbCLOUUGv1BJKl8vqeb64cHBNh9zNBUIsk90Ad7ov1K5+wlxoLDIgGYs/EhIJ8e6Mx3I49+P",
-	"383vRML3PDNFb64vttKIb2G1QmjLzGAobIyd2cuLmGf26svfi3QmL9Qm7fZVZopXX/7+feq3OIY9XoUG",
-	"M/d5qiXZDrcJKMJZftRof/GbBQcnUGUjQafovVuY3Cl/D1fqrART85KrB52fyfwNQiYwSLYvTB25LIBJ",
-	"mlBK2DnmblAou6s6LuZSq0xgNiGpWHgtfIKopDhLjKAdagLEc+17dO8A3QpaZ8/ZTdf77JsPcL3t5cVv",
-	"r28VIfjxQv9KL/TZNx/mQpcZXNtZqDYaip+twNTDnCiBAMKPSuDbAB+fJ4zaKUUqylKhJTQtus3lLRcu",
-	"c0vIQsTl87hUOFEhdOopZJ/WoYB6osyIZoSBOuK91EsHC895uARkXkSYIsTQa9AgONlhMZgoHFWK6A41",
-	"49GCrkmkyeWZUbYR5sJQAmyWKis4ublScEglQ01Kq8mJkAlJroWeCF0QBHuC1YbKOgLcD8IuDfVh/9F6",
-	"RTRYlHekW7dULMvdbA36vUcPohYfGhxBCiP9ttvvHx5UI1X/2O/1Dx5E8L+HD79DDz2nAmI5kfK7+6vf",
-	"7d+//93b77ZWL8N8+x30y7vzPIQDoC7WeeDZMDn3EKYRRTEztneeqLzX+qgKflQF33ukQpiniVHGrnRJ",
-	"GHIY0J4tWd0G1lbBkL0L98spKK42cHkyyoLzCnAYgxdaCSTTxzZAbF7pDyJsuPVOGwZPYFmXan2yWRMs",
-	"6loTjMRFqhWxFNgXmStXf4rwz7zZCI7gACpAEFZzBvnRjGReVt126a1sE4W2S9j79rOzl3vPnpyI/Yf9",
-	"gwdD/fP/9rC3v987IH+KSPJ0UhC74QxM6wIL2Ufhyq4EuLQItUVCeFKuZrlkol2ChMT8HqBinsEbaFid",
-	"UjHAFWZ26jdf/YojPE4rR3RdpAdubGrBZPhRUP+lCVlwsJywTieXBEGiAPLKU4E7jqj2pM3kSW+eTN5D",
-	"tMdrj+ZK3QRqCZu2Hj9lWGxUWnStxMHAyd1s7XMW61J/jnw2YhTYBjHJGYmC0/8jQmjDdsoqgJ5klpVD",
-	"7wk7NoQp/v2CKkg5wC6iSPiNLWSR2iIdR4x3CO1as0DUc3xCBkrImUQXM8rb6zDfI6/MYOPeqap9qX4n",
-	"97vUMI99LtpazlTEedqUnO1cVpk8v2fFn41WEayjBDrPdo9KkQBrJsUVpojrpE6r6XWmUEN99sVxF6rU",
-	"sRoFthRXEIcRxr37Hj2pFRc/FsXZZOQ4xUPy6vHTD0Vi+dS/sy2TL9FHmvqL09TXFYj9sMjeu2al7CIt",
-	"4id3ICa+MJdoUgx4Qz22RBRGABJ4bi4VE+BckSM0JhJIE7cOb4VJKDlTPV1FsP9U14lDTxxj00jD3DgI",
-	"HJjtE5j6CuEiMTu7ZemyhlAMb0kwAPoAyKqBFQRhF0Rm9IXKV2eGyR6PynIE8GCSIsJ/2yHyY/NUuLMs",
-	"dpYbsOeUNDJXxSLX5UIWhmJ21FUHIoroxyD8ECGMtLkiCm2ZlaWWS48Q8BijE7vSX26aUgvMW8yNTsfl",
-	"GCDkBVaQ2RlB0vpfbSyswuQjYVwRcPemy1r2GbxYgYAa6LqD26VMzK6bPORKhJDU9H5YpY5E50yJYctl",
-	"cfK3w9ZA2MV46iocIGfgAwYjdMdrqHETsC4iJYDdsyFj8phP4d0op9xplrVhNW8nZv9C0QvuSrUGLV6l",
-	"ViVUgdwGxM3rJdO5jhcKFtXymBBitEOYAq3bL2RDWhujQKNSyUe70Ee70AcIzaXbV5Kod4/O3cDkS0L2",
-	"3qLkA1rquJwmrPnCmE4ZxDiTOp0oW3ANLBR/GNEzGmpMhwftoKoW4CPUDQSrBkeksUwVlrFxRYGIOQw1",
-	"RX9OOdWf9QDi4lheE1/ric+B3ilbqftTFhMe6lXuzNBxQVWc8hfjauGwqYvj6jA91Pcg2lUcgdi/zmXu",
-	"uBVWpTjUcqh5B/Bz/CXubEwsPSt3/FdpAfLjW5dH97qyuB+1lV9BRn1w1JuSCe5GRYneWQ85bhZqByHs",
-	"B8BIWoF15fHWucryJNWIEvc8kIlj15/TUcrKY6EseeQ0HAmVlGRmjRNIbUntQwkeqj6Q+OnFfHf4VS58",
-	"+Lq3igCRQlxY1zs0+71kcVrlXG3Hyforv+iSsBHJmS1s4crpBmtEmhMhisOeqMSbsDnrnQTzkuBRNDvh",
-	"mHS5FT+nY67a45Y6Aj+uQVHS5EOdpMjVEyHHGDPMJayOyvJaoLfh6YOvSPejV3HXvyUlZYG1dit0ldVM",
-	"opo0YVpIEfPpT8/TLC0A2rxC0incvYGoizpNdyimthhq+NxyfkYDKS+1E0/SZbhHroEjoVWKzM2hP4Zc",
-	"ijzvsKhB63wlh7pUVwvfHeprU8RT5m8YS5eqapP62og5k17ov34dB686POm5W9OKWnwO/IsywznS+WwN",
-	"WmOT52pcdKcmt6p7LotC5cvuw1BlwhE7OgA1icZjNS+kHisxzlPEeBQzVeygHXky+wsFcfv+b+TKHzWl",
-	"j5rShxE73l3a2KAcVbBa30OAJ+lHYS9lSnFDPBhi+RRxEykGWfmbymh/lbJ9OMRN4n1l4T9K+L/8Vfum",
-	"uchzo7S/IVVhy6jMbST9oL7TxnsmngUlrKHZarHxYDJsE0DUfiqgCIJr2FHnyFdwBu196d3BWoHkaBeM",
-	"uDWVWBm+OihO7vRVgF3HaE0tQz1YbgQBBJY39psUR0KboXYxfJ1qiEtauKL2lZqkA4/POdT7/f7PP03g",
-	"FO5pM0NXJjTxm8cCf2njT+Iv//TPgn/uuPcQgwSkH0U45UP9428e/yj+8j//32spj6WM0wsXeVSYTOXw",
-	"eDQfF1g5xFiscEeRqT//y0Ff/Mal1Yqvz8STV8fi7NvuZ4efihfYuvis3+8/Dj1h1X08Ws1upWFhiakc",
-	"jTkuCRnNJnI8zlWSFmWRdpcN6zAajsuyl7i02ojcePe+cwCB7kGulePGdONqorGX0isFMnze8VDLAg4v",
-	"eZ2B2It6/nGlcZNzxlDgWUOU4ytQxo5qacusEFiuQLSS7Ew8pyeOdRCW1ZR6XSHPLqKKhpAW9IGyVBJ5",
-	"SXmeqF9SZjDNGEx/pM2GjUVDDS9Jh/WJ++LSW3HwrvKKzKlmcpFLbSkT2EWkhdDwj9hRJLyfCFr0RWvJ",
-	"Kcf5lqwi8b0daVOM3G9YF4ZnWKamo89Ii9WlKhsJk7vLJmpRyfwuIMxNUsgCBw8XVgOqbHYQLOaOUZDK",
-	"D31W7hzu6ii4MFjdWRbxhpzbkMz/tSh1AbhZa9A66B982u3f7/YPXu/3B334//8ROE1IFTH8+U2qSZHT",
-	"RaoXoOtFPm335OSb7gzRR2th0Yf9R9sHRYeL+QtpbOEQaIeTbUQuRyWFWRRAET+qcx/VuQ8SR4h21ubo",
-	"MtF+dvLN3snJN50tRU0vtt2c/rO2mhN9t8ck/D1lzQaBJHjTCWsGyHwtv86VQ5IFFwFh+WmotbnqDISc",
-	"GeZ0LuTBc/iCcmSQgeC3vmQtz22osV7TFsyNBE942XFHLsiL+LOlibFiXsSHKEESYQnAwOSVTAvvXcM4",
-	"ERTQWHyzKkSioYmNUj3CUiQxSGkaLd1lqEc5Cets9SZLVC6wqPG3LhCl0j5AixAXlhdqNDWLnEpehZJe",
-	"arkdLuMjC7cTIJlrfMHX6xKH/UNX2AcjfHKFod1UQ8YVT9oURcgV+nZnw/7QtG5Gd10Pj7ALNOsqN5kZ",
-	"imo9fXoi7t+//+gI45Bwc+W5VbpYhwoqi92xR9874qDbik3Ag+XWfzRX/CrCJ6u7AldV8rG8U1vFTSzk",
-	"btNJj21QhHBN1mockSIXGg/LdZhQcfMV5hK7KnUr7AWuLpbrHWpf02tLjglKjzVMK8XzZy/OQDlVxD4K",
-	"ALNxw0tsY0Lql8a94MaP7qjDofYx7+RwWa/TlPTwXRI5Q6r6TtoKk95BS6dFLpEIrygu+6Xi0pzp+aAh",
-	"Y/OzXRI2mxblY+rmR03lo6ayDXv5aiFB/lluoLN3msO5fbXZO2AxuxW5pZrY9Qq3iEMd1LdlEEHMnEGr",
-	"tnsRo+O/p+VMm7xeQx1yriatiHKUmjUjYF2diEL2iqkrQsWRMzC+ciZIVnCADVTFsaahDngTZczQa6nl",
-	"tlXCmWImpyCLApAGB6KsZjvUpfmvkbc5kyVMDAcEpj1XRNbuDRf9/v2xxv+ooIAtq2W8yJVl7Yljhkjc",
-	"j/pQLtPlaREO4m6883M8Z78w/6Q+m5jprgyz3kq60soa1ISGJvuHB9Dmd5tY+juxaFz7X5xP8yg2M+va",
-	"zXI3dN0N+8i3P/LtD8e3V/hVwHfS3JnP3gsv54K/29kSKz7u3S2LGdV/CWGvw6QsjCjRcqbWRZS84LG+",
-	"R6pCXWyKBeEF+1gr5e4zTbKsrD9dOythlj6/s52p/Q5DPEK7B3q54ayKMUO++1O93xOvjC2oohlBVMO/",
-	"8WWuTb8c6hLTowQnqN8P1zSZs6+DX9oH/X3Af1ZY0Sn3P2C87TIK/NRjDvssk1VrACZDzQgmMLZy6K4K",
-	"ebF6b+9Zl7lOdGqo3UAZ7gO7d9mh4FE+wAKYr6e5siTrZmpSCExfnQx1EKYRi0K+UUEdmXvWw4iHdVfd",
-	"qRJ2aq5wClmGICQQLUCcnbHpcyUWOv1+QWsPAqaztEMM+Abf8wtXHuzdvM53JlyyQbqULBc6LVqD1uxi",
-	"7zl2Uz24X9J7QFK//kbMp6YwM4WyziS9VC5FMtUiWdAYsDAWojlgMSw4Wq2o1mt3cdmKWh7oAUqW711v",
-	"L0LSkv5C8iLvZwNVf+Ygd5yfq3bej/y5xrpH5LdG+n+XvvH14yNiw6fW5O+GT+1YbRww/70fYJv/ewOo",
-	"/ijx/gpBxvDyeBoclRFjoVBotNqB3TcLtHymfwm5lj3MFBBGVTLCMi3x+sr+jQwH3ZIQIRaQYzl7X97S",
-	"Y2HnagzxDgH9C4jiFj7TAC68ocjxwf7hw8PP7n96+PAXLHW8ntiWIv5Hx+kvTy9earcb71n+Z+LBuRrb",
-	"EI2VvAnO8YuETxB0SeWiTe2iNErlmBKVqUIla1OjX9FA3qf9TOV2c9YDDfqjonvnpxoWnVd3+zyhW2uq",
-	"LkmWSrawMoRZhhFE/C6yrIJtINqIURDABYCO1YEqUSZTHCNVpiG3GVFPwi/iOL8w+iBNxFTaqQAgmw0a",
-	"1itX8v+X07Bg9iNmW8eZuhanZc5lYyLmdjmXJlMBLobKWztAF+Oi/ELxubwja+iBS2JufRT8Pwr+uzLy",
-	"udLodKQztDvZqzDovR/wcr7dY1a7nZu5JrUzXRxLHaClAdkTKWaywD99lcA0J3wBsigx/FePGuI5lUY3",
-	"DhtyKC9ok2sig49p9OvoYIPgTzTptpL/c/z6/UrW/32QkP8DiNZ8+DzK3F1dyYUG1Iudb+RJpmRuGWkD",
-	"oxEwC6yCqaFK+JPGUOWvseuP1+njdfrw14nO3rvfJtZX31t2P5qv2c5WlsUt3UWUzujrplKSoy1koSKs",
-	"hEs1s5FFaiUKU8iMQiZEO7bqewj8qZYWfyUvlOVcWkpfyFJbiLHR0BI6s6xSYohakR22HFxqMG2yXadW",
-	"JGaMESjg+nJRSzBra/IYP5oolbhywT6F+VxdpIjGDzhq6J7C96KhjsGrNnINpFbI7ApyJKwqRBvzzoSa",
-	"zYslomYz9CeHglmTCwtDiYYa45UhXXJmchW7NAsCfINHXGhcXKlcuRKyYmxmM3S89Yb6Ka4ODK06Iqt8",
-	"tQBswnvljB6rgWtW5mqo9WJ2juFevHy0Jyy5lEmplvvFOGhJ84I9zYeaE6ql5r5c4owfKJoAczpLGD6H",
-	"r6VWgK2lUNp1HXRHjYzlghJtBpjxjluAgKsoZnHsF2a29/B4ohmWn/dkAnmxMf3Ama90wn1aa8+ltEfr",
-	"s7X4zfDXuIN4To1ZRf4D/1M4CBf7V9aoLotHw9DhuowYstu/HCYzGa0s3BSOfd8Gbbdd4tr23PvxoJYQ",
-	"hLn7qfaQWmGKM7SIY8Ub6+tbrzVBneJ3T/CM7aykw60/wVPcWrUxw4/Cpn9W6yzICPVeMR+zE7g12O/3",
-	"o9KYDCWrfkEzMi3RU9WcxophZ5KoKV3Vj7a0u/coEcNCwm8mNSCDCkQpPbmb9Bp+e+8H+scoTd6+p2xM",
-	"x6GZM3dxokR5KcKBXEs8ijgq8Ut9JmWFi3NsBuaoiGMt0qREk6CuKlG/Q03gBGUPa7xXdBVW6UQTqj+8",
-	"ec9C1+1g6M5DjTNElsoPnZjS8eSiKsX7JjZK8j51L9XFp4etgIg86vcf7j96dPDg8OFh/9Gj/V+coFDm",
-	"8fqqCPDOR5n/1+GdcrCEhG5PyPZCm6v3R3oWW2fulW7t1VKuJufAMhDD2kHNFFcWx1dPoQRrLKxltMsr",
-	"mSuUnCjUqlYi656nPZXaMnV8lIGQ4qC/T2ihtmI5C4ROxL1ZOIxPknLJCHcpszQR54vCwffQyMZSM0Io",
-	"x7WZnEBxQKLnwKcI0gx8EJnFmjRZhK66CciV+JLtUOYfADSTkyNyThQ2RoR1G6plHAcil1dDnchCQiPk",
-	"8yumubnSkGC+BBgoGn+q54tCtA+vrzvUS1g0a6hPFxnQeLU0DDNNlIKC1wbBohM2KkYb4n6hkqUIacnt",
-	"ExNYhOLhaDhYEv4ZYU5h4gBbpDKQQdEkY7BobztXRNSUPyHiwohUFyYEhaLDUlwZF2GWGJiPsFPYMjnU",
-	"FeSTI8ev06QSqhdE6OMq/M3f/I0I3D5DfaaAPwSPun9QSyzaMYP4wVwVeapgNyaqJ/6gltQ6XjmHZjDU",
-	"BBiLGoolhUfNcPhQ+I0QaAsBrLMQB4cCk/ArWTb3MPAQzMboP6MCFgzhPaDvxd+evfwSFjwKFh9oxVzm",
-	"ZTElPTYeYk+0rYFAx0IJO5djxTCwcOxZp+MVnaHDqXNEHQ31ydk3lY5QpBYlN/ZA5bm8EucmgRIThQI7",
-	"WlecyZkSb9QyopLpwaQiLhvFU4Z7OUfPNZ29Tz5xZYiGWvgL9cknVCOjWOS6nNdBf7+kFNgPjgI5vYtd",
-	"i0GdFvRaZXtP1TyTS+w2X6gYQvIYvhdXtEyDqk7HRdkW4ZwGgGdUeREWPFNBlawgj4oIAMTeZxD2SPPm",
-	"rhEqAgZMcFLuUhXlGUFAeCpggquvRY4zIfQvk4sLVSCgLbTSpnmfqiJfdo8nhcrjjkjBFCMSQ4QB5pHa",
-	"KYwHWsZZHJedwVlm4gQkBTp4AJTFfw7htygdvlFLf7Xg6LTjQl0Xe2N7GXeG+vdKKyxpK8ZZqnRhSXPH",
-	"N+HC+5w84DH4kWh7kXCoWVE+XegTaM9H7so3yqJXWJS94cokapwxbpylkzvU4dG1wvHNI7IE+c4YBoxC",
-	"iNGCErRsh5rY47lKxFTlKqqdQDWZqDEccpO7mXprBgPnUcUgqZdBop8V6npuclyPniBA5xOS/7rg4RuI",
-	"chC++uRQU7AmFX60jO3mjFQr1zUmug5aQtkxFIWMA4SpWLTdwhDljV3dNtyQArX9zhFXbY7rgmnM0GtB",
-	"t8hGzhWHeIn2IYRuO2UEL2xqxdevn3Y/AzjojFgBkpIukScsXpZakV5ouJAdAt043P+sP9RtnjpgFZ7D",
-	"nI0LPBfxsBUfiedP4cienD5/KrJUK6F0AqWhn6caof6M5Qs61OOpzOW4UDn0Ff9N7OpD0/bAUsAD+yad",
-	"z+HQnGdSv8E2bfgDe/Do0hs02GG/bOejDeuJE5MtZtr6BBUUZ+BI4JQHsDw/ijG+JH70R1X8WNqfcnMl",
-	"fnTcDv8Y6h+73W7l/6CVGIDAYvGjWCorfhSxayHGP/D7WNCbHiHBvcwPROoj/NY8xM+RQZcf45/VT8n2",
-	"SW9XcRz9Vw65sfJzJP7yP/8/RL/WguMO5cdGV7JnWa7Y8MNQ+0VAjRH6L3sphYnaTF3G5MoH7gcxkWOs",
-	"dUhZrKIv2vQKiab7HWgISC1J/DSaucphJ6HUFUtGzjnMLqvcXNkqvQEiX24b3lfehVACJ2KJF9FxDCWL",
-	"aiPV7ei4iFP4vd5DsF5t+rclJlt2U+shWDGo5GWuWPJIqSYukWOeM7SEvyIromqoeA/CftOSfvu6hngL",
-	"UGSiF/H7L1m+X1gl4h5QcKytNpOZmBsUR6QWjq4hEdZIpeL93gPVvR93CJRUAF1bWNTFrALqVpjcHon4",
-	"S/klENRnehKXhVvSNyr06qMuhzZ1Ua5ITsj2Ej0fINQx5x2rLCO261ksENmlKAwZX83VPSvgTnvKiieL",
-	"PteuxjLsn0/ESNwSEqmRYpYSaKZfQ/o9ArFP4DqyXlKKO6QogSzIJJdBohxN48hrIHbQBkc/4EuH/Uef",
-	"kmwYVjqjigm4CSoX8R58WU/+pr9ocPQopuPR/H7c8WcG19gV+LQkNdM6tgHVFcy8pdoBF88TViJbYEgX",
-	"HoUDPnnQ79NvNhK+CafRukKbIM4gT6OsJElZ6dDUQb8PqekCNTi8yD43vSvOSAdDBY79DIq1ad8iSjlw",
-	"kIQ2ukvUhFInjkj7ECKTS5QMzw0Z7129svNlWJnunsVGEwVKQh6kdkET5zkCGaC7Dg13XBlQSL/kvV4v",
-	"dvtGvhsKfxsMdRzHQ/03LMtQxwHVdTlDKu/uizaz1lUW2hlqON6R0yJJwa7yA0f6I08TIkdhhtptZcRJ",
-	"RtHz/ajfexBBTnz/IIo2vtF/9FnzGwfRfq8Pbxz0HzS/cT86oDcO9/fxDTo97vcIP37QjzC7/mDNC/v3",
-	"79ML96MDXtA10Y6nizuBMK2ae+Bk4EnzYiCyDIayZcsAptSu8bT44Oq7yB3YPJrgaJUcet24ypff+9g8",
-	"Ah+amWQJU1jCxa0bZYj1ujNM3IYheskdRmeA+dSQRtYNyEn/Wy/aS/fB2/cDetv/rMSOCvZ00AqpSyty",
-	"57CWaeinwxiBtsD42hANowlzowTFOFgFxThAunFw+LABbIM+XwOwcX+1rf379xFewwtva4dUA/wF6uXh",
-	"fZ/vN7TcP2DytnaYtSb3gwabpt2neff3t23wIGiwYe5ANeE//YfbNngYNHi42uBn+4+gwc8ODrZt8LOg",
-	"wVX4k/1PD2EN9z+9/3AXKLLTRRB9HbWcIl858K2PTPPumGbNz1+niKgCOBsOykqYqJzq50pfFNPQRxdW",
-	"E/9wQfNg5dqMZY02X4aGCqr/cuZEGxRPFtpyNnMO9YpxO6LwIf6IZURfBJ4pNwdzBFnBTUbU1YWO0arq",
-	"qiKn1hlAuDe3dhydUqIOYKc1mxpYFrdJJD43JlNS4y3bLneZ6whw8jKaHgFs8mPe8sf0hffs6QVUDCH9",
-	"RZ6kRXCZQ1fvQm+Zl9jg1XVs5p08u69ZCQURFKHtKqb6mPO0SvM5R3qaKx1Aow41GcPFhfcDsKE6CMIU",
-	"VmmGFCFHjmUlFPys4NVNUing8kWBTb5TuqHAJi6qJvHAzr/qBegJNzdSnCNfRMPSP9OS1PleCAVvqCVW",
-	"qjBWNa3J1SYDPlQtARcRWEGG2pDLlCrWO1cOl080XOFXVT1AjpSuATY6CVwld68g7qoGvi8A7tsrf+9j",
-	"RHem8m0RbrSTCvgr0fY+Cr2/sNDLTmS2EK6SrI8i8EcR+KMI/FEE/oVEYHJJvEdJ+IetA6rfEboHpuOS",
-	"aqQLIhrglJyjjMure08+u38xdMuHm9OzSu5NrsYqxYIzVcK3LoD6Fv6B04V+3yVSYVjrafrHKORfAWym",
-	"u5N0eG91B3cPQaYyH+87W5G+CWInfa1KG1VvG0dtQTQG17DMFUSbzuYLDALWYxU55q58pIj1kb2r0PmE",
-	"3JViOBsVT0ziI86oc3HIFNhLqRmYTtGQSUaDd+HJFynIPui15UE4/DOcaTiMMnjaV36C6D0u7eTyt3Dn",
-	"fWaZj+k7DZM+hvqxytPLUo13c3SU6auTKIx+XGSVAmAYRjdOgcQFAXSURAK7EHOGyYgexYOh3u8FvVxV",
-	"hri2ktdAxG5S8dFQH4RNjM0iS0QlsLv2+v16j76Qps+Hq31xGH7BUZOwGDOg9IXJly6oW2Kop4/uwDJi",
-	"tbYe9EKQtOYcRF+St1L+jIMB+DRQ1dogvo/GFfYW1Wuw4ueVLl2cT1NN1VzhPPDoQLogxg5hIMlK5VYn",
-	"ba472SkvCbyHDdDHU5UrYKFrKrSKaWpxdWuFWrEFbBuyQSsnhKF2MFjIaWfYdVVPvoexuCLJ00nR4QxX",
-	"3lfcSbfkacFRvdViuLxo2AatF2WvwqdHQ/1peFwqVeIGIg6SK+E4PAzfDYrPibbXcuCmRBTd6+vP0WA7",
-	"AxwC3yqg+JUEbp+hjVdbpEHKLiiKriQSk9vYU4SXaJ4iu4QdaopaPca42YEIBYTJNM1/68JDy6LAGK+K",
-	"ES1Pv3h2Kk4PgbxmmaJE3/jzhU4gNhHG8PLcqvwSW4utaF/KjPF3cbJfn3z9QoxNokjZLhZBrnYlV20g",
-	"yiUQf/lP/wzBz5CnESw2PB7qea4geEhLwLf1hBG+GEsNIVocZUpVLnA4RyJOFDDWmG5geYrwF6SWT3Mz",
-	"i8uN7PREddEqQb7LoXYr5AJeUUrmDWdDZ26unERZho7JobZzYIt2qlQhrpDWwd+03LBli0xijGCOMc7Y",
-	"5u8i8dtIdCPxP0aikOdDjZGzvhqiZCbVEfNcTdJrXgLKLja2yM18qriqNHCekEdJYH+GFopi2yuQzbgk",
-	"tN8CiipzvJZjUjBrwAwTabGyZNfd8KRNs4fdy4PfqvwhLaE7Y0P9xfOH4vKg96C3L+KXp1//6bS/H4uZ",
-	"shbRBFItnpw+FJg4gUzJaBXUYRLtF2dfREP98vNT+unl53+HP9NUBzSxiA7iQqdFxL8IOo6RMOUBHuoi",
-	"nanII5aCJDVHEAJq21EKtv9GzNvVBbwjlCaON9RSjGWep5APTJkRmMPw4vnzV2KSU4UVA8LEF69fv4IC",
-	"L9rn6xTTXCm6KpSfv9BjlRcy1cVSnC+SC1WIpeLMhKDAssCYL8gip0qQuDkcu7hGAzn1ebMfQBHxdKaq",
-	"jdTxSJnauAMHi7KcK1HSnl5pWTXnwPNRQH4nlcetQz0CYL1JBaTs5qO9+bsNKZ72o3b1y2tXZ9XK+JSO",
-	"vNDvNb2TdCsf5fSuuZ7UTiB+eorl3B/QPggnUmDVLnFhFHq1nNRoS6s4pGMg+ketUFaBKlZdjcqVLlgK",
-	"AqT/sDZWWnpg2qVyZ640iPcYnhyURPCiYIm4wUG8bJ71wkWAaFOEyeZVKBvg92vyUcXmdFQsSVaR0FO7",
-	"oldeyXK5jziVhhQs4CUOOcS7B52lqCeeFRjvnijL4fmNmoT1MeZDHfSKODql/FdX0iGW350F3nCnyxEY",
-	"S1pYlU1QQ4BMLbQpuJkGat9C35iZykwwKByGDl5OWIW+ptC2kzccQAofjSOfEyDSpJKGWindhLUcwBYO",
-	"gheoRFxs2hcTKzzWzlTasFFWW9zUSCsY6nJ26520vIB34ajdgaXeMiqzEie5NkLz0eC+i9DcHEzZELN3",
-	"n8IUDx492iXEjhfxFwI5rbD3RvbrtWeP/ZiXRiWXaPqxQthHp8v7t+0miT+NhQkikL53pcOKqZrtIoxs",
-	"8LxwR3s/eN/72/dt2J2UeWtE7iMhx7mxFiZKF9AVMCKuj2bfoV6x+x6JG5if74oFAdantsHAEQSBU+az",
-	"rdGfiKytVaFW6QwUoK5MfYUx869rgG/8iO4mTOZ9upGqa/NR7fm1E56VWyprp/W9KUAl8Dxd4BIbbztN",
-	"aDP1+XyJ4ih0onKB8/pedtk8GwahoG/DaREe7R7VGwxEHGo/UMR3thFmvvPdhQFz3ZRy/KUZRshFkmLF",
-	"+TTDYX3LL3HRuAb4v7KcGvuRRWG8+dlDESowuomZTLyLCEci2pC360bYiSrGaYD4UhrsaCO3aDjNKIAA",
-	"RQusE4LOFZrpAivsULe91dXrQit+FTJyd1g58CsNjTKuKKjXCBYpmsAOo0Crg8WAKeJCQrBQCQUJP40K",
-	"4ybTIRsn/DtYTu49Sy+VX+2hxoXzrhJkAo8Gfhlp59zWELxpAydwe3nmOrsLZaGB+r8D2f/662ePHcG/",
-	"pW7xDtUR8G6BaYXQ0UOTwVVu9EWN5fe2LzD3rb9rv1CRuXLP17C48kqWB/yjJvFRk3jvDN1dDSHLk7c9",
-	"SPVNPJsNU92ZLFSeyux9RoSMTZ4QyjO71blPRGcZm2Rt+eAz/uKFH+T7pAS1zjaWFHYD+ogP+16KCq8c",
-	"lZ2qCb+nAsJjlbPtPFeuErAbHxx9WwCevDWMUMPeP7TF86djdJHH6Mx0SSzqei51opJR4COMKVYxHoOI",
-	"Ky/UiNBuYsYAiQuTqZyq77Z//hcho9L8m6txIfXFIpN5NNQL8Tsh9/7yT//LfRSqaiM0ecX5SMAc81zN",
-	"Zc6BR4BESEkyfqKEYQvClhaxe3k0Qce7gzHkWfPPDEBkCzWHMJEsBRQpjkWFgIBLgB8hH/HsuVek03yo",
-	"/Txt50gErogIfcDYhPN4I1i9D0qYSwLS5UCG3/ED8fNP4t/+b4KHsIfdd3xIVa4yWYB46U7fUId+27GZ",
-	"nWOCRNnBPUYLQvGYpnHPCrnXhhX/+advOkPd/tuT378ALBPx8//2oLff+/RIPFnkEmjO3smz18cn4quv",
-	"j1+I4/m8J5709gG9hys/+9JzQ83A5ODvAHIJci5CvKCFvX3Yf7ShZledrP0a6iPXUsQTePDly/vds9cv",
-	"T/7QBeAXfF45/Jje3nRZWoMH+EOaK+tt5Q+7/U+79/uvEcqAbeWQytIatPzlHc3KJckMfPj85esuGdr3",
-	"EbVgAbNROWjXNAdx6m/+Gf1oa3WdoxYeOQI6396+XtukX8jQvnJW1pp9mKW7FbxdYWMvBsTNIsneD3A2",
-	"PqZKfJS137fMQTQ3CFYUAW24ZVnjtef5ziXtRtP2jWS/wUABw/srsExvSaVK4vTROv1rAF5/l7u1m0Wa",
-	"Cv/tXNHsmbULZcHEKXUCkiQ0I9oeU3r/4DNxnha2U3p7IDlAE0y1dVZmNc5V4U3HGC3iMhF1tjzyUHEq",
-	"d/jh8BxFUMaiHmqsxoqBoZivkJkLkKnXS3mvYai/qGgXYO2ieSJEi/rOU5jK46hFC1dzc24floCz/oVk",
-	"Jez7hhxaPEBBgQ8+GhBqq1F4/1iZ9aOwsjMtRTIlJJ2ugIYy1dtSPKG3fd4mlTffmlSeqkvzhnVhbOmI",
-	"/S8l+mh/v1Mq5FpdlxjtVMhmqAMoVRf3lWO7CZNecuo3FmLF4a6heu/P9VKhJYerq0XLknyUOH4NIj1s",
-	"xbtfk1zpxL6nUlH0BujDNfxsBLt1tq6wOmOQzYd2hqGG7B1//mPR5rprIraZmQNiL4LwnEurQpz0mZLk",
-	"LOfwgLPH2FKZURi7L+IyFaocLrnJdWKuyg4P+lDkEXhrbjIHDWzBTFeIn//lQJw9Fu0rmUNZR7K5/fwv",
-	"9/EhBfN2MJoGXPhDfTZVV1OZQyYX/G/72dlL8fCzh/3uAU/nW2WLC8ztxpjW/e6BLRuPxH73PiBmH3QP",
-	"bCROu4c2EofdfYpO2u9fA6IoZB100MamYCElpZyWC2urWaCW8n4QzUKbwqcqHvl/hSAZYAPluIKhjn0H",
-	"AzGRmVUxmGIvU5OR2dUZVC1OJqzsCQ1C3POlyTDWGBNzJurK4T5D0Zb65hRTlXPArN90AA6m/cDYZ73I",
-	"Mk46oi5TWy5CTxwTprLYRzjlclZDDQf7SADshh5TVUVXOFOHJwKDCrCKZlvLHEHDC7cWaCeGTcRrJZih",
-	"R4Goi2giYxVxdua5QfybJUWaD/VXJwIZebLIlaW0fzke5ypJC0ayzxVYvwtgKjoRZy9fcd2Gdd7/36sC",
-	"R7OGj7x/pKOmbvjyv9c+/Gy3RiPCdXrlP2uAQ3qCKCtAP8KIewgBxHSAy7V4VnAw7gCR97ksGnpX1zf0",
-	"Xpg76PsLcwWZyMv6nYxKMQjzAasENKICSEVApNeN0v3eXGfzICyzeVCpsnnwgYvi0X1aF6ut8hQWBa6u",
-	"m1HkoeR1UpLGj97V91BEHlKtncTBleHchaZ0RkqeRDGjxsxhc6qcNxCr6KzflQEH2cPePDNFz15evCfx",
-	"C3uppGBTv3ENHKpkC5GgUCDOheHlQSllEMoOXOyJIp45eE/pAkUDzbyNZKKhDkQhWucyao5bQ9GDboXC",
-	"iPJMudBF9BNj9bcMePdpgzAC4gqOehPze5WZ4uyb33/kgR954EceGPDAdCYv1J69vPjt9Sy7RV4wkoaP",
-	"bOzui0iHpJdyfJF2R4Ko2B1zJehbjRc5WA2BKp4rmav8eFFMW4M/UkEBNOivyxuhX13lSlbUAmTeAat8",
-	"YLQiKxqHorjKlzJJcmWt2DNzpeU87S3lLMOs1YkqxlOHE9RWvYueiKdFMbeDvT2GL8vkeY8t9TFHiizy",
-	"rDVo7aHJn9eqPu5nQTmvhbYU6V1GC5Wpre3SjmA7vfKqwlcNALdPqchr2JajEZS6F2D4gABggybpxYZG",
-	"n2lYfSXmuUrSscNJdgbGCmJp2F75elOjX/kwdBhLmAEQTBJfaPq4TLWuljiPfIZivch3MVUOLGaiVFLp",
-	"hdNwVrr5pjHdOCrzr8syopw+oCE7ZKyC1r8fNzR8jNw3HcuMgTRsEJrF1RslZviaLB2nKlxW/qCp1VfP",
-	"yCAXvk4PGt5+hTGufsFMNcVTZWpc5Ean4zJAtrK5+HVDs8/BaaesL52M/5ypIk/Hrv3gbvbq8L10Wr57",
-	"+/8fAA==",
+	"7P1fkxtHlicKfhVf9C0joAogkWBSFJEms0klyVJ2kSKVSUo9XVAhPCMciWgG3KFwR2aiJK71nb421ve1",
+	"52HM5mFtze7uznO37TXN2tq8qG3f2qo/w+qTXDvnuHt4BAJIIJmU1HPZNlNiBiL87/Hj5+/vfNdK1Gyu",
+	"pJBGt4bftaaCp6LAf55yI55ls8zg/8CTVOikyOYmU7I1bL2aCmbUGyHvaVaIbxdCG/btQhk+ZFN1xWZc",
+	"Lt1zzTKj2fkieSMMm6o81exqKiSbLPJ8JNtmKtj5otCmE7G5KFha8InpZsJMulNj5nyedQtuRA7j6NoR",
+	"dvsf99iZkIYpycSlKJYjyaW+EgUzinE/oqvMTBlnlzzPUhpubyRbUUsnUzHjMKsZv85mi1lrONg/eHjw",
+	"yf2PDx5GrVkm6WE/apnlXLSGrUwacSGK1tu3Ubk2L1WeJcvmxcHFYHN8I2LxaNHv309wEvhPcXj1KT27",
+	"ymSqruhhPGQxvhOXiwdrEtNL8UhqkSiZamaXDdb0nmY6+5Ng6lIUuNSFmGR5zmDVOhETvYseiwf9/uHV",
+	"pwcxm6hiJB/0y/Y5ozbdYuFeMDVhg36/vlpzbowoYIp//EO/++ib3x5efUr/+J9afqm0KTJ5UV2pUzHj",
+	"mYTHK4t16gZiHEmxGV8ybWAOWsiUSXUVMTPNNFNSsEQtpBEprcDVVOViJP1kcjExLJMBxXUOWSqSQnAt",
+	"NE1R8GTqKYTL1K6XHklumAnpmhvRY32gMc4OBo/ulHZOhRYN5+qM9jdihVrIVKRsMY/YQposrwzNnqZM",
+	"4yli/IJnciTbsW++61c8ZuLbBc81C37E/407h6xPRzHzTd3JHIUplkcTI4q184NjesUzw87FRBWCFfBJ",
+	"Ji96ragFW5MVIm0NTbEQlcFs6vdt1Jrzgs+EsSzseFFcipPHzcczgR/vaZal0GUGj+fcTFtRS/IZNpxu",
+	"HMr/VIhJa9j6i72Sg+7Rr3rv9euTx7gQJ6mYzZURMln+XjTwiSOW5JmQpptMlRaSvRFL1uYMvof94OxC",
+	"qZQlU5UlosPMlBs242+ERg5nikykI3lVZEYwzSeix54AJ2QvX5y9ope1UYV9O1FFygx+nBnWLhZSD5kW",
+	"YiRjOBxGnC5kHLGraZZMGc+1YpNMXohiXmTSaHZ89hU7V2kmdKfHfi+WmvFCMJ2ouQDGOpLl4aWegTeb",
+	"qZgd4pmFicG60gm2Zw9640ZYrjWShVrAeYPdCfqmhTj7/Kg7ePAxsCXoSc1FwWERIzzpsHMjWe4+nmpk",
+	"ASpdMg4vFFqk+FjIRMG5wiPD2ldTXL45TwT8PJIzMTsXBVNFCneRYlLBohsjikPGWTznWl+pIo2ZfTGz",
+	"TEctTKc3kl12xmc44YhpPguGir0HE4vYJANO6zgREFIujEiHI8lwlh99pIrsIpM8Z3S5ffQRdIdra4eP",
+	"XWjDzUJHdrYwCcbiZyrBbuMOcb04IMbuqZjnfCnSIQO6jiMcm1RmmskLlmloAOjKCAmTpnHa+zXhRZEJ",
+	"va69Cc+1iCsLgfwTGhdFsBqqsBeO/QUGP2QHgwF03o7poh+GnfxeLOPqEgO55gLXqrqWmbb3RybZJM8u",
+	"pmaIb9FNh9PjQB8TBbSHszfABwucBxwR7OfIN4hEPeFZDhfPwfU1DP/B9XWHpUpopBEQbJDm3ogldfZG",
+	"LKEnHIsqRAqDgeem4FLzhFaB6BkPcUQLAm3QWuMY7PF8BWcrhsbgfXGdCGQiQ8b9naDhmqO5T9WVZEo6",
+	"mmZM4jGjcURMk4wEc4XXD/qP4HTC3pfHONN6AdePhHNgpgJaQf5UiEv1Rrhlw9f8JmYTHL4dyRXXLFca",
+	"z4VjsrSvJZutbXD97nkm5IWZtob7g0/w2vF/RxVZ5Kj717z7p373UW887H7z3X60P/jkbbNIciK1KRYz",
+	"IdcItZn/nWWpkCabZKKIkIkoDXKH3yTgoesuj7KT214iJ75zHPZLfiGOF4VWRfOwYymuzTjBN2JHVvNC",
+	"XGZqAfzvQhwyfo6sA4i+PDLwk5/FtwtRLMtpUHOtbYdsx4ciwEKuu3mLhXy/9+5b+F7PldQC5YDPeGpl",
+	"TPgrUdLYzefzeZ4Rl9ybF+o8F7Pf/o2GgX63ZY8v6SvqtDrV5zyfqGImUqaX0vDriF0VCk7Yci6Ae6BW",
+	"shBwb+gsJSZGzQ7ZzH07kn959uKLCGR0pGCQ1grBOJMLvHzORa7khQb+zRbyjYRjP8lEnsIn9oAwEPgL",
+	"Li8Eu8xUzo3AX3Grmb8zicN5bgZLs6Rj26QUdr1W2LQ69ou9mg4ZSr/dUnXaqgX7eqWJik6xVSvlF7WG",
+	"rCi+ZSPwNu74sZKTPEt+VrrCIyS0WhQJyK9w9ws40udZSneDu7LanIRcBkxAXIHIkxeCp8uI8ZGkn4CX",
+	"qYXBO95EdcUZSRKu2qxk0ngHuLt1JOly7XyglBso5SluUCrkz00qdJnnPHmjyVBCQjvLM7zMMsni665j",
+	"t138Tce9D5u5aTNPpBGF5PmTolDFz7mhrmMmoGdSlVDo1yC0Kpkv2aiVVV4atZx0WwrH6Yf93bi/Xyjz",
+	"FKwvP/dZlRzEBcfcy8tYXGfafNizjXv2ki9zxdNXSj3jxYX4ubcOTyFoZcLewloUl6K4p1mi5CS7WID+",
+	"h5bdD/u4cR/PRHGZJeK15Jc8y/l5/rNvZcoNP+dasIRLOH3nwDl5MhXeEE27myWCdO2FMSCap+pKRihs",
+	"tyco36NS3yHDdSa14TKhL4WGFlPLsc9FwhdaoErp+wYbDAj9XKbnH+TwTURjzc1db2/e+HFpmcbdf6XU",
+	"cy6XzgXxiwhngQOt4AZpyntyPnCM97j5ryVfmKkqsj+Jn/Wqf55pncmLqFTzI6+8q4KRfS1l54IXorBe",
+	"yw8ksJ4Evv766+7RwkyFNLBnYtXsFH+Gaxk7izOLUTaOGTemyM4XRrD26dNj9vHDB/3OZhdU3aBIhDQv",
+	"VCK0huvqiTSZWf6c9PS1yPOutTVlcr6w1urzQvA36PxZ5MJZBO3FdWhXQMfWLQMX3EiqyUTIFC4zNCKV",
+	"msMiFx8uoRskl9dSL+ZzVRiRPhdpxl8hpfzchiG8SO5pdky9dmEUcKWAJKOkqHrPGE/Aj6A/sJcNO/vW",
+	"HX9cmyNcMS4TcQJHDR7xNM1gNXn+soClNZnQrSE6wup7VH7NzLQQGqNhDikiAXbHeRKtpxY2S8iLTIKl",
+	"LxUTvsgNa5N3B0IWyICjyK00E2aqUmRf82Ac37XOefJmnPA8GefqamxULgoYwXhOhktxneQLnV2K54F3",
+	"HdgJN61hK1ULkMGjMhBgv19638kMDctcdjLL5Bi8pONJQU4u6GRTe43xBE0tv6ehT9VM6USkXJssycxy",
+	"zPP59MaTeIQvvY3I3gLbuuN3YJMbq8l4ku365YzLlBtVNEQUHE8FWPquIJ4A/ZWLgv5LxHQpijRLzCH+",
+	"gS47cuTz9DLTqliiT8aImb7R1QP9fMFngsZzfUIf7Zfry4uCL1tRayGzbxfC/g63qZ2AyHee9fW40He8",
+	"90CsubgUua4EuzzoB0Q5WA02oQ+Lsf52wQuSHt+BwtXC5JkoxolSb/Q4vbvZuYa1WaA38U/iDhsH9+eO",
+	"W3gpimxiL8DV01yl5O9/8/h7cJIFn5A+zIuUtU+Ov9o7Pv6qQ6FiEHGIARHaUCiJVDMMm0AXW489tqxz",
+	"0I8YBwWAvT5jT14esbOvu58cfMyeI+tkn/T7/ccjmfA8O7cXZNg9nZqcn6sCT989bXku08IGOaorG2B4",
+	"F0v81j9R538jErxZywukvFl3uH8oQMhfPRgeoYpERO520eW9svNFsjq9d78ldrkNtvh6Pavf4uMGRr/F",
+	"V41sfovvKkx+d55c4cINLHerEVQY7jZfVLjprZjmNsxxh69qnG+LL6tsbYsPdmFqIKMTY8tzBS5ZsBQ2",
+	"sjjN2mnAtdbzKxT4bhzm21Cn/UO4UTXSaCLYtedm/XGMNjKLzYygTidVSlw9h5U9a976VTIKD9jGPfym",
+	"iQs78qiHc+rsQmJDIOHjAvdaG/l+v/cgFA56/X5/v4HGjiTPl0bcyO2r/JoiarYPM4pa3y64NDde5zSY",
+	"L/HdtyDhJaIwPJNmeWOETvnq2Vwk9HVmbv4sMys0jLOz3zduUjjMHdU0yTh9DZFKzp/qpQ+KGQdVH0wl",
+	"YBzRPfa1NS2tvm5c0NNIlqcb2tAcIj41hlQuWZzpsY9bitm5wLCguHxErgcK3IBo7cwYkVrtbyTdewwl",
+	"F3Y0vt47Gmfay0XwbTmpRMlESOOCaGE03I7HKg8nZ0GbeSZ0JVKJ8hFYew4nURpnXnKikyr0PTYTXLKT",
+	"M+ZaOXRCxkh+3P/pb//T/uAB+00Eca8zJdnJ8cvu8zM2Ry4AEsmkUDM2EzNVLDs435xfXNggXrDjTUWe",
+	"kguc9gKipSikKtPs+l/+Q5/9839maZYvkK/+839mExIJVb6YCfbPP7jp8plaSAMP0mLJHBdywZp+n0cS",
+	"KK2My4dhQFw9nB07jopoyJOkEGlm7AoX4mKRw2/44dmLlzBvMZIYhHfIeNkWm4tCK2nDdlzURiH0Ijck",
+	"XFZPeSqSbMZz3ZBZAUNlRpELClNy3MvokBI8hY0rmZZh5KrUvZBH7fc3R/zD6TECV22cO4NRA8/bpAK5",
+	"UzN2J2Q3vpXpMVHkeJpdTNdLLKG83b9pSL5NuMDupEm3x8WNstyX7s0zsnF7Mrz1CpctbM9xo1ZAG2NL",
+	"G6t05tSr+xBOLySLHZVhvDJFnXaqJBXeevuNSSSr/HyRZubJpdiCm1cPSKlf1OzmU04xyqmSwuVJFQvZ",
+	"o4jrNI5YjNy2R6y2/JvP54W6DJ8UAoYpUgydqvkIIhhBU9zuF5gfMGG13AkODTW3U9t4bkTXZDPR9G4q",
+	"DM/yZhF0zguTJYucFzpimUzyBRr9uQsVLNAnybWSvcYY6vAa5qblJhi1vARne/9m3T4+Uxc77qK4dFmK",
+	"WylDAbWsaEO1GdiWm8b62SK9EOaVKGa/zygeSEgg2T+0AiNBK2r5ex25s5hz/0sh5gKc+lmemSX+nYB3",
+	"d9n6pr6wUeu6C613L3mBThnophzAcaXD8vlZ0HX59GVlEOXz09pwwl/cwCCwleOtqdccGroY4ULCAy5T",
+	"62EYWocCir9O8AgCYPz9nxSZEUXG6ZKfL87zTEOAxcUiS+HjBlNL9T4dyeqFag0xcK+C6ZzNC5GIVGBT",
+	"RNTsfNlwy46kT0DLBdfWy+UpbOVUzTLpTJ2rOjYq4DuSNZDuwoh0daWfwuuUnoeiFTQOyY95ymxYivv2",
+	"kJJXMDdJpMh0sS9cmZiOYkwxglfTZXCkz5XKBZdVdrEy53xDBnBpSUJSgBHxwiZJHDIJuYm1GUw5kIrE",
+	"GPgr/LfxE9mkyv7B3WVRC5pFMt1gCP96KjAjpfSM2NQ5lIVoKHBNpaJqGEej+FWmhZ1RaBlfXbVtNKyK",
+	"WYa2KFjmoDEK+2ucSiG8H9bntjnzAMiReI4arwwNBwa09jUbKLRh/h3Yk5ngGg8rytLhHt5+p5o1t3Jo",
+	"jsb8+kTluagq6naNNl4w5YI3JVzizttLN+BWlKg9ZHFpGoHbnWwjcTSScWAXgV/qJhF45q0ai5xy7yIW",
+	"ezsGNlII+OVSeDl3TJEIEYu9WQO/Au1vwfMxmDbggbVfaGxlpqQySmYJ/JIW2cTEPRY8ZW2/ZsD2LKV0",
+	"mN0ETRojaZJGASsBgklMvmS+EQpCQl1PFW9Q0eXyQvRchxii5naJccMyeSG0zbOT4spn2OpczcvbgM4j",
+	"p2zIs8duJyjNoEy9gl9LbXXQZzOF6X2JkGYknfxFfeioTFf4WmhzAUo3CWSknLM2Jbr+7skrtne5v2cK",
+	"IVMdd3rspHLG2ULmQuuQZ+QZ4RcwrkfSL2pkD2GY/GkxDQRiEEy5ZPt9VhvnSGIkb+T6oQbKrWqbMhfb",
+	"6bSsxiIh1SL24sY4k+OUGxE75lvdjJL3FgtpIz3QP+IaYDOO93CuD4NZ39MsFtdzOK6eTnVs+WdmRrI6",
+	"5JK+VOHXMsJRI7OFNbReESs8NZgfq4bHBpNjaDS0x6sVtUIr4ZqzFVoM8a3gZJWGQRyJo/1W1EIiDyU7",
+	"t9TIm+SlKC6ERE4EokamQfmdF2qS5WJL0Q7Z1HNIabQLQQ/cauBfz3jy5sXkaWbcg89XVwWff8aTN8eV",
+	"lcHHp2d+dehvu0ROaHxiFwh/PAlWyb5NS3VKK4XPXpTLReMN1gwfPLYLh3+4fvSJfExrh4+PKwuIj166",
+	"VXzpFpHyq0orVRM3d36+mjnL2m5KBgIq7w2WWFDf/f/doEtD3leG0mXDrXqlujoDC1Hi3yJTMPA6pMRL",
+	"nuuI9XsPgPn2e48ePbrRSvzo0aOKnfjBmlGpYpaZ5YuFAakg1FfgYiXSdaIpa3gEkQIwlOrVuomKbVcv",
+	"qS3713HZ5NofnlJX9gf865vKJM4MN2Imdjbeglij3bew5olvsrwnPKNDwUPbNGcSq4gO8eoIbpYi029W",
+	"XaIkQaDVqVnAWsznoggFDewQ8yszB2JC79APP/39P7CrjhO7bHqekmJX0dgOLFdXzeMC99NN46J36Iff",
+	"3uGo1gnA2N8mr1tTk6qk9Y1S+MrhAKE0028aVR7Y+5tafGwJ5RTetZK2p9eVFp3RbfUH2PzdJl0Tp3Gw",
+	"bvVcg7bHCiFEFXItly7YF7sm4WwaRWwlTaFyDJTTO57Ps6m4mvICDQPQiDuC7ZOzF+zhJw/73UGd0jiD",
+	"pIg8k6LpBKLh2Z3ALRy29gt7NLb4AK8WseXLV7yQYGXdYUDuk21HVNt/O7xqO7WBVGYdVRbtm5LQ7AYH",
+	"p8tu9Kk9D/X7txS3QTNt+z+FYTzvRew4z2SPHU/FrMcGD1l7/9En+x128Oh+Z8ji/e5AxyO0BZDf5lws",
+	"lUzZj/84AM2gbSfQOYRX7+sYIyT9O/fZ2eNDFg+gEWauFCgjUotkAfKNe82rFtgiEtohi0+7B/QNCz6J",
+	"oPmR5OfqUrDf4vsu/NkClIhcXQF/HlDPB919DXBai4Kt9jySvuv9sOv9/nXMjJCVT2wAJ76NHjY18XpS",
+	"VXCGJWtFLViOVtQa0F8wnVbUgvHAb/3rLa9u2NR9agH+dd/9a+CfnR64fx3s+/f615YyLkXBL0QzacTW",
+	"+z428ZC9YZ8y027v/3be2RtE7M//fSwmk05Vdzhk8ZuBfXfQC6bsG2pFrTeDbWVrO7gz+vhVqxzv7wc0",
+	"/DVYGi/m/NsFYrdoYRgBYLA2sJ+PDxZFyZLmwPHkhXNrOFySB/uDrXBKxt1GyLSIQKt2dVc7XzD5ItjX",
+	"XusTHAapq2ZD+zKHM5qDOSFRYjLJkgyuN7AoVPUnHZMdMVGXvMi4TESMMaNiNjfLiEwJxJk0+S+kgNah",
+	"G3wPeEnEYmthQ001BgHTog7FaJHRaJ8cSbBPNvg4eULsbsxNo32sVHLBpOjerkonm5wlvIyvWPktCWzh",
+	"GyUM9x58g3PaLXKrKWor3JnViZ9INlOpyLsA8GZBlVJRDBnclLxgfzjvR+x8/5vIPhgTnBT7Az77dsHT",
+	"gpssce9F7HzwzSGTSnZtA9i6BhNE/Bz+aY3IbWtJkCyWStK7PY8kMsZf404llni7cDNrWn/QtBDrNa7j",
+	"Bj0L0RHJiIQ+bmcs9frXVlFTUask+qZ+3W9sxk2RXbuOw12LmP7xn9p/9f//3//267/q/PQ//39//P9E",
+	"rFBXuHrBe7RzlSW7s7XbvLDk69x8sCxYCPdBJ7CqBCa1/RlLJ03Yj2RhYKm4KITQsIKTQohUzSImURma",
+	"B2btIOSA0iLGl6LQjbaBV0E0CpwMep8YlDeUEQqScb5ffH9vv9fv9Zv9uDaqV8mbDvQT/+LbqAWBK7rJ",
+	"v5MY8I5jugcNhIZn3RJSOa/E1lH5TzPzNOcXTZxkKvhlJrQhu9tNDaFN6mzKC9RssnQ75KUoxL1q9CT5",
+	"2NBaAEGmTSYTQ+dXO/vNhIw2m2NPcq+DbJwQvQWnATX/xuHRT2PwF64nKnqJuZeazwdICZWh7zcNHdnr",
+	"TSNHxgtvy6bjY+/3csFYG4k0xcgw4WzHiJjauXkxPTvfAurrUnzh3wbPlsoaLykKOfcGZyuSRG6lVMHc",
+	"gCN2UajFHFJfl5aTZ5Iuc52V19v2OSowxpcwrKYDUYlDridUAqiRSKsMGi4RI4pZJomjtBdkc7RRvJUr",
+	"trOrYQR9KzdN6BRfehvYsHW6gaf6NU/FZUZj1u3l3nUnchrHn/+3K/Ypk+wKJ8x0wvOdTTrkXb9x6PSW",
+	"fR+t5QrvA57nLyat4R+24S/f1AXfl4XQFgSaS+a5sz+clYhJivUphCU88phSwPd4ew5Xk40bAG7dqtML",
+	"a2QCjPxZoeZ3vekJCHSrc3FGrwaWqeo0Xh+/fs4SVSqja2JHvWl9hZs64Wi8FZv7yr7t2Z29+278zr4G",
+	"ZhSk4nHCZZql3Ii1zMi/Ad7JRBXOzBvzhVGxDzBFHeYauDk2jBFSefZGsDaqPkB15NdDI3MpO6z5uLM1",
+	"4yL+c+xG2cS93FzBkSKbvSOfqyvbuQPr5blIrawjgdLyTCN6L9OLGfxHOjTmOGAwzZKQn9X2Z/hr/8nq",
+	"QX7lwA8FW2hnfkawbwJGprBC2h46xZjnjHdaOJoxuh9Feuejsn0nU6W00A5CU5cqdkSgyd7hasUEogEL",
+	"j+oROG04RUmIVkE/F0SPaW1Wfrp3Pq9gqFy/oasMO/+TKNR4ymWaN4K2A3HBK1VmoAm/wgassytRgCVl",
+	"bmyYV6HSRQLHKJOTTGZGOPo8JGOCWxcpGC+UFjcHHxJYKDFwL9qtCnJRFZDVafveRk4cKqTq5tVv4jFO",
+	"vm86k/VlrCn0q7dJReGs3vOoQFUd3tCBd6MHGrIXxrwhwovJTtIo+au/NaKKlaWiGQZGkBXNq9E9gMjr",
+	"8qkqkpttWTVLz5pIs5miuBAkUlSattc8z7nOGkMZlzYazKVUlOmQmYSwl1Q3Mr9bWYScXe/mm3kxm/Fi",
+	"SfrmPCuEXq+cZ6Ay8UviSIkAwbni3bQeZIbwv5uddysL+IfSwuqFvZxrMw6TpdY4FznGlYUvMm6AObgL",
+	"hpu4GlpGw1FSbMHbvgoH8Db6rpSS8rz1dsU/RkvvyCCiiOVgaZumFWzyWgJ/luldQ9FvTTk72BJrNLRi",
+	"COB6PFPFjbT4OdfPFen/AbT0TV99Ia5NAAO9sg26VW0uGM82S/5FqJ/uYCHHqGUemjbpzPM01cMABJkM",
+	"m+0m21wnsj4dlROwn/Weko7hLYGThUTf2j3N/vzfUJSE5HRSPkZSaJPNLAKzTKaq0JH3Mvk4ImbjiMrY",
+	"g0oEHhjJXUDo8VelsTN503WxUSKt3sugCi5tkMNIxrZ9SiWBzJa4x45KbHBtCo76ICyVdolOZCvWvZF8",
+	"WQi4OfC+x4udJCErCy80DS2TlwID2Ob+dbTIQpUS4k8xBEzKdIxvaixV0Gj7p4Va5TRopIIgcTAZqYld",
+	"0TAHjbXxV5g+5epZ/Cd4DxYeVAEtOkNrjKCYtb+BkPi0tzEMfNWKivHsxA9X3obfuD/3DSYsdTG+3lCm",
+	"BK6mtOAI6c84y9VFbXv5daabA5TVaiSQi15L6eqHbP9WMMaxC8XVmYQI+2JLl5s/msdB+/7hme/IPzpx",
+	"PT6zHZYv+57Dmi5j29V3G/Zlo3ZsyX5rTmoj0bwFqWz844O1rZeHakuF3kyF4bu8O95gwbSMYryLOanG",
+	"puvrHYaJlGReIWo3idoAI390HYmXe9C0Xmu5Pu3Abhz/hRQrRseydEOa8QupNDA0yL0s/4SjVoolmamB",
+	"8LK2VOQxUAUocIVSxDMr7BctT/gCRSf28RUXnkqGoU04TcTCGx1dwaGHSWG/nglb/++OBrykHmS5lVsM",
+	"s+gzAjXdNWTLGXybo8CIF+/apndrNDodwPG/a4s+nBj3qxnPYb/f//GHdm3j0G1VWdXOXuXP3U2spAbu",
+	"PgPSxLfc1AAwYRx22YxBni+Z+0ATajV+sOvcSGleZ4OvG6rRhuWrljk6eqdkFCKc+jEIFs+P0ZNmsCNr",
+	"Vi2gupXDEq0c9EZaC47JWsZ45u29dRcAZrxhDF+PHZXpGBh8MSeMxzFZ7uNDn/fJEFVA0ib6wOHK262o",
+	"5ZIacNiU9bptVE455pfU6qlrNPjpqGw/eHrqu/KTtzrOrsnAlUiSOwgPqTjQt2uPCkmNyyiR1bzg0nGA",
+	"L1nPcEZBPBC5Heb4BHkXnd0E1ztz7e7mVr1Lv+hWgEKN7HFXx8/tfSurzpFbejc2wGA2WH5/PmtpaJZs",
+	"sCxWCX6DpbGJ1VUCrRsiDTOA8RiXoezxMExQDhPPKJS9DSHObDEHl8eDPvsN48GvEIh4sQCTLOqmi3i4",
+	"EiSv2QyTujKJwZrnSwaX02vWPnl2dMx+98mw/2hv0N9/1KmEMdZH2YpaYT87xGyeYVNHYUvw+HfQ2mdc",
+	"pq+Ruh9b5JOmaAv6hU0wbd/H/BMyntfGWdvnoH1qbw8K0w1gVTqHbJ/uYvJs9G4HfdfvNyIMPgnDbXaQ",
+	"/W9yCzcGkZNt650gFzaHQDglhGiTRuJEGF3h2jtcZ+vF3kIQ1rBosjmskYHKb5rO4UoEBeiPY8KJKDtp",
+	"MhvX36kMsxIOsFVZ1XDo4feB38P2WBtkAFTRzGo8xW2ncq7Zi+1xayqbtKrAOpKxogB2ELH9LoQjp43B",
+	"MYceLmj1y/pBXYdc04zHskovGxcwqLi3wxKWJ2grC01tu6oGIDun9XANdfrdzrH6SlybBp8qOZMEmWgt",
+	"KmmRyTdwuZwrM2VCAtKzW8XSUQxpO7YONaRjwL9tFBwvhP3U6zmVs3Q343UhZNBb0FHdKlQ7WE1776IP",
+	"G/JE4KaxoY68Huiow0hHFqdoNJE2UHFMQkY8pDwRfGZryM8UGsG5ZFOeT0ocHcNzF9Bk876rsY9Q9jqe",
+	"iKuxP3x6PFHFWEP6Qby/p/84oCADjEQgi/FIUs847CnXNs/bLx4Oo5pAjRiGvoe4msfROMlW1Goc1pai",
+	"gV3+x7ZptI5/7Rq2Pz4VV6e++aeqOKNkCOfrWYuiwRk4bbBWKBnCtBOa4C4kLyr+SMEZPG22Rn8ueG6m",
+	"O/KEUvB2q6feECGm26LoUL8vft9yQzilj+tUbrtqIu6Ts+3QXeqUTyBzAYxgN7BKWnS9UETdiKC3KriU",
+	"r4/h5S0tPRvAXjbjp22H27bS6EYAtZU2N2GkOPikHZrb1QrmUVhuCD1ZmXnFZlTfmNrQyzUJljwq4U/s",
+	"DvnhNJJkKUo0pcZbcDGEpHTqXOTC+CLLqSKXMlFYSq3lM318sFU60zf1Csz96OP7bxsTnE7k3xBW4Hb1",
+	"E+q+wBIHdavbLxS3vmmA+TwBD2rBjo+/Aogpah0qp5IT0KLFBDETVlnSoDuSpGU/okC0LL2roQWMI2VY",
+	"UCymJzYb69tkbP+OSuROewcWC9lBB4S3H91DaHKkiZ7FNqyUSN5uxKf+k7dwa9AaNdGevc193TSRa0FO",
+	"67YXgNBrknP5Rlf0ZAtKsAMCgSeov8TxWMCB2lOPL/BmPY5beJKz5BIOsf3f81ZUeRHHXVpO3J+0C62o",
+	"5Tdn1ykEIG9n5WDKI3P8Vfjncf3Pz1pRY1uf2QH63whAeuXxmZuAf/LlsX32DWYHoD9rhxICq7xdkbZy",
+	"sxHwHenzprNexm0i5jFhwoUXMZUpJ7uHmtiq/HjU8QShDWBLy8CKLG3XwFIjso1GBu/5dhly8Rk3yfR2",
+	"ypUdflW9uh3z3V7DpXOgd3C6u5lawqvVF7lBq6stdWm7dONoWudK+zcojTfEJxJ2sg2FceGEqFuBNgHJ",
+	"lVd1NXw721I1AfImpAv75prl0FtT2zsR2m6Esv3Cluua6V9mWf9tkPWJzXXdUWcpJ+qzZcskltCLTXnm",
+	"8TkBYpewkxGLc3Vl5RQQbmOfB94Q9EBfN0v7N2FoNHl1UJpWc7EmNNVPKdPM9m2RHc6XwbihAUZYEO3f",
+	"/vT3/7dOxLgujTbrgttQ4F4NM/RBJEkOVFyCDXG9nM2NMlCQb2UdwwV0i7e6Rt7quE0tEnW123LW7X4I",
+	"HmIBRZzR2O1gEwk+40YQwd9K2t8q69+h1nPtsSsPS9NEIRKRXYr0duzhVpwsDTwvGwGE3Htb+WHrhuNA",
+	"OtpSJmryBpacpGyxcSPLhODd0bhKq53zf+S8QHxCDS02me4aLB23CFPSbsDVMUE0SWgYD8RBQr20L/A8",
+	"d2mq7vfbFFupR5bQqBpX+TZ4So8d+L6L1JXGx7Fbh2VEaAP1tD2NFcvnhsVJkZks4fkYPXwxaMCOHjqb",
+	"IGBrW+RaSTbj9gHQ0/7+Jwf3uwPmvrG+RbstUpg6pt/1ONk5sq0yq9uMwy1CxJa7d78OgR1yp8xULCk/",
+	"yi0nKuxX0yWscW8NoHu9yML66VjditFHUJeWJgbruDPMcq4atPyT48/ZlwPmR0WkFrH7vfs//vCvf7d3",
+	"tnsv367tpYmqI7bfv11POruY8WbxwO/+v/4dHhpvo8XzUk3gi7GdMaaVwK29JaRI8NX2qu0ZfPQZftOc",
+	"z/evf2czJyWYpWy+YqeecWgCkFiZrs9gbV9Ns2RKLdpzQDnlZ1BvalUsSFu0fytnLlrHFFbpeSOm8zN1",
+	"kTUigBKMOwA5whu9VtVA6ayTzjS50TL53Icw7SSj+DCMmyoS1Ev37VwYwsbJkLslDGZYmQqWFxtrkU/G",
+	"ZX5+c5AE0IEpFmIldRXb0Awa6VIjlJYLiGddsRSaQN8yIJ5Jp1k4bTQ5bFFbqhkLKVTVtglSvhnaJlhH",
+	"FCDtJzuA2oStrsR91JJaoYeL7FLINeAyNcTltXuGukjsIv7iiCmZL1f2b+ZLCPsWrT07xLR3dlD3bEuL",
+	"JZ2VJzRkj/J75Bux5QORu4z5hRhP1aIph+cLL1pYRpQqG20PLe9cD2A3QBULEb8ax2NDXmlIAPw8UVWf",
+	"UMUjtW1Yo84uJDfNJXTcaaxvokdsLz8G14ONwWXcKpjg6LZVAa3Jpld+ULGv05econ3gUI8h/Mw/3WX3",
+	"z3wPR2Wj9Z8owvdIpv6db24ZzBh8NVbzrdIo/dcv7PtrKhEEoY/httyUGO5GUUu+9kwvalXC/daRVfNR",
+	"qSVg003RdDXSit8iGZVIbHveTB3dWE7HNbt+rLe0Kt7ipiWrw3YXYlgxZF5kMsnm3EZ8zJVGkQmcAiin",
+	"z3gqbNg83h3nyzLMMMLoHxdRb5wPwZfzxMkNWcNVWojJQsNZXyTTMigfI1AOBoNOj50JwzLj2X0hVsvk",
+	"QAUce3PDlWNryRkFjBWCie7+nt7Fel69w7cTfUPD6zfRmtJj/d6jB72GC/nmyKitLt4yDsZCfaE1ulhI",
+	"EpG5hGzgrpp0EcxjpbrCSFIJ9nbsY/ZtNcewdAJuK8XcYm2IdnnFd2r1E4KKKLe6uO0JrN/fz4N2N764",
+	"+0UPSm+u5IWNMg4DF92iUpKyM+6DUd8GbL9jgPEnDz85aKz9fitpYXsb3QYxYh11gfcbbGS0IMh7+BUH",
+	"JmKZAbCWcxHCWjlfSJW/rJHHN4kglCOPtzQVg/O+TyofSQKJAanSpYsPGbcc5p62n/K8FFWAqDkpMPf8",
+	"DNovX5xRGRZal73vsvTtHv3Y6bHYNRMP6UBs7oEeCQs8A9eMrWSCvbo+C7UwgnGpr0ShgZcyyWc+FnuR",
+	"Q1WbBmkoHpKg7f60dVJlORApRKohJRvyOm1n5eDOlw75x/HhEOk5UdJgyn1WQGIppStoPAUMN0FTTYaF",
+	"NBncQ0LevSDXKML9SoU3e5c3S3BNgtpGb+dzd/hr2STkt4nZkn3Kzvvst+x8/8cfrg9ZXMH3s7/bnzw6",
+	"QjyS1e/gv4Mff7j+8Z8I3v6Tg48/7g6Am3+xgrLbBhu7PBfFxU9/+5+e8wLyaVITkQKOCAYi7URo56BM",
+	"ZTmSK1AAQxYfzHMaXsp+C4ZcyEZNO3vtffjzei/p/PG8E1Xw6EbyDzxi5xFLIpZ+c8jiB1s08ceLiAWf",
+	"Rezim8OR5GAPCC2njBsEioqYrUtkkZ9q1t2EjRb9/n3B+gQonclJTtahiJ1XfrP1pGzuCkQRURyWlbI4",
+	"vZywlBUZ8NJoJO0zwVJgjoDEdMgwNqbIhLZ3+TkMXIoLStGeIOeiBqjlkUyzyQTzY/CEdyJ2UR0X+PJm",
+	"wkBRpAv2Kdt3K3Hw8hkWbZpDfQZaVv7jD9d/PLfrBwsurudjDWeOyoa5l9r7uPTij+2f/v4fzn/84boD",
+	"KCRrvhqryUQLQx8vgQTXtOC2bdn/ppEQSdAm4BF3nDRCPUOwWby/t/zjII58qDRietDsoHrTTHBZi3am",
+	"5luR/Yc9Q62o5Q8OwNfP4fw+wP+d21IW1QmuPLAz3lbygdk9c0MJ/nrhhoPPvgzGhA+eqkXx8pn/K7sU",
+	"5V8v7UDxjyfX87NwsKsPX9jxIv+RRhzzIlfbakM1y6d+oy2ZYlMM2yrL2wmeTNk5Vvdk7b88/t1ztt/f",
+	"7wA3ESk4SAFPRLM+XtFkIsa6mRwBpbRh+/2f/uf/fdXFg5/BP7x0NVipmLRfzecKLSCilqWZSfPxwQ2o",
+	"tPUYbbHG1xxAD62aV7gmGHOCHYqDuj54F0+y3IhCRw7Yrwx3D7xfhP+TZ9rYIpZssijoducXtnLoO5cC",
+	"aEqfejEXqN81yWyKFdzFJLj4nUMM+vWyKMmRIDkiRCGW64z/XVyL9N0ffHKLUN9/hxb1/cHDZpP6SxR7",
+	"dgXJukVGdZppcHKtiSNxv94mSRvWYDY3a6B7Jos8H681JOYqebO+2JH1aKx8Vaj8JpybjQYYajkcm2tz",
+	"dVJ+jMES3piQS7t6C4vTXKj5LgA82M+N87Wtrh/p7exNla0NDsrAMrvgoDRsvN3cjZjk+JJNeAC0wXpH",
+	"Dz6udtSPtiEWryCA+KuN1w/wovqWd63KVKDtABivNsRdtsxAVrk48k3DX6dl8/Dnl0dHZQ/4drWXisno",
+	"YJPBCDPOv10I+7MpFmIXWvfL2kgZ9YjaMknkPeP5lSFjujnrcy4KJiQIkj4KAekXssqcThOjdzozekdM",
+	"9DC00874xuMVjPcGjL6y9W0SAaXNNRdBFF2PxRiNRwhWIGViEJ79c0jKgdctMBMD3w9TKVGkUZdkJXE5",
+	"la7CWVD7tB2La1PwuUIUFoy708KQZCAyuNghU5CGkyuq3+v++jYeBh2XQRCqaIxVOGSx0y0glZGXmgYm",
+	"VjKHCwjvqXGhlAFzkZu0rMHsWjPCSLqcBIhhLLhMpuherCpghyzms/PsYqEWGluOh75cVojca0sIVKAG",
+	"sTk0RaL/MihL2zkcyXghbezf2EVV0mBLFa8eSApf0Yb6yEesm4yrWj7C/qpaSWdYmdVIZtpDivpSX26z",
+	"VeFowZNKaTFD/seTqdDRSGq1urq0hlmtZm1Alq2oFVAlqiUlHbWilieZ4N8QG+E2Hf5Z22VosrJLyPzq",
+	"y+s79kvleyifbMfGA/4H35/aQZSPj6Cj1cdPqlOtNfPsxeOmh19WHn5RLkPwUJ0qZU5kw0DcupzSspS/",
+	"vHYLdFKuT20CR8FC1YZV/vRNhXXdTlq4bSD5TEkjxgkobzebousq4y8eiL4p/Lzhqrl1GsHdQDBvqto7",
+	"Fav1esG3s22dKPR/bI8mRO/fClOIPt0dQMgamG9BKaf4ZVNMzhp8oybk33Et3hg/rS1EfXI1x7qbwdZS",
+	"iB34zid5U/BqFYSRvFkoA1RRdcKo2fLusXYDDxtpI5BckCk8uVLNV3G7fo3vXGMmjEvfgqS3LFsVZEC0",
+	"iXRYXJUD484txNN1dayy5gzzLMh12eihc+8F3wSAqo2BumXOCARwqXPDM+kLacSTTOS5KJrLZMwEl+Md",
+	"E9BdqHlTsBS8A1qBx4gIqi1wAhxMb647VauPvyqmg4R0jQJp6cvGdxsTgSJ7Chx9BUjzQOxOtt2VXBcy",
+	"EQWstVneyFXLVz9Dk2dzssNKIH51HQIqKos6+N2ob2ZwnlZJaTNbsjfvbmzp31JWyeZckpeFmHOX5Czm",
+	"uxq+JeN59u1CGUeMc14IaSgmh1DdOMFYskuVL2YiImM4/QHMdfasRAI2KhcFYrv9+I/ghE0MJ/DpBoBe",
+	"2+949k4p0K4Vo3Lb0upHDfbwgDHD3N5xENTGLYdQ2/JgWVZmF4y21mkzZajzXMwaAE2fHrNHBw8esjm9",
+	"wShUXK/u0bqkC4xuuMIQy0I5KGh7/aIwTbZ/siU2x+euKfj1VCFoHs+zlGXgo7b0piYTCgBhcEVQwD2U",
+	"t93+LsSpPoWPG29CWaIvrwqzdlZszs20cTr2BSuzrm0AjE5/1bUKR/ckhbglxWCLbcQ4WQQoYuRBv9/Y",
+	"l16DUwv9fP7q1UtGL2C9sQoy2YNHjwJKPGj2KpnMNAFDnk1VYZgmlFjPKyz9QCuNQ6UHq4ar16cnzqWy",
+	"dJEjYWNOHFgUcoiy3hsh5qIY2neGlkLiXqtq070JLAB/dXMMEDU35EpUCGf43ZYH5JUNhWGZYeeF4G+a",
+	"a9+gvUoUzd/XSH7IOPvLsxdfsJf0EcukUVStQqXLiMV7WGFijzz2Ev8j7F8JcGv7KB5JOJvHZ1+hiBzT",
+	"G5n9dWg/5zNhX7d+UY9kT4acm0AZaF43rWxZEWBHreKyGUH8+CvW/k2nUa5qQnhHRCj7slnOMWNNBmKh",
+	"A3Mz7LrUQIpKwJhmk5ybXaWx662k19qiXrciN/Gm5fxywXOUPc6EuU1aaRj3+q1rC5kIVS3BCk6Hlhsj",
+	"etzEMNRbytQIUVxmCcDs2PC5hgx1MvzlW8hEi9z4OeGV4cq93OLbTI/BWbcoxC0+Bu/LlkUg6h+/bdio",
+	"U9fSLiV3Qu01KinYGmaNqlhsnXkec+exsFxppueEExQWuQ2qMhghU4a4vRWFu0BKd3Wlqjt6G1iBO0yd",
+	"bzoKVMlX6F0xWcA43hDFBoyge1VkaF4HlokPIJ4yZlfTLCeGkHLDz7nGleK04OdLjCtzWGWsjY1oGzvJ",
+	"HvTv21KZp8IUy+4RKH716OSyc6s/Ycc7ROnAYnxtv3d/v8AmSshUvU5q4anTjjVrT5Vx89IdlvOLrpX3",
+	"EZsq1RgVcaGYUS5FepJdLAp+i2rDFlex3MgbK8asAhvugmnoO9qMZUihkWtoLihYsrPjsygy4ms7VEna",
+	"0UhKEXdCJrfHLJo4IahKKiiVzOtSCYmya6TlamGWBhFXFY0/1baFBuTfr7W8DewySaEJz9fkoy2khChb",
+	"KtO4Yazr31hvvq1+udJZOLjq9kWeYpopMRdco427iZsF0dAh+7LuvDA+/hA4HbQFkSwxU+h7NCzTI+nK",
+	"VqBkQIizpZOWwmJcdcISVeSQxcDupiJP45F0d0spSbkCGJFtIWILOckMJdyrgunFXBRapDa9n4/kVt32",
+	"3DQcPHHMNORGYFZ2ldkGa0N1ROzkW1HLjXxrhoI9vqw0aB+ehu3aZ1/75nEHa9xvt2OayfFCb8iMIGaN",
+	"jBr2U6qrNWA4/GKsRaJkuiYFZcILIgh2LqaZr7yXgY6IabUOF4RrQ8GU1RT6hXwj1dWaCj4brTYlbvMq",
+	"EHNm2IUw5BrAmbYXErETYcUjuLcIl4RUp4W0ler8nR1ROV/eWcO7cG8aoiItEB1cfd2ukwa6eGUvitwK",
+	"bfsVjdwCgm6LFO76jtwWNx9/Cir4ysF07KgIEGgDt/wbtlMaPWTX//If+rCSaDmFE5gFp/eeRkiHTljN",
+	"AP4dGg7ZP/9gD+RI8plaSANP0mLJJgW3welUTc9QHe3yEgHJF9qPWEEu6sihs+QrUIMjWX4DL9UgNXRU",
+	"kZS9XOzqRp6cEaH6Go6OTY2kAzR1biffDSj62tYwq4F6rWhWPEkKkWYGf49gsGAfxcIRMsV8w0RhCG2h",
+	"IfI0mKNNeiHWrD0yPSgcjYUeE7OuguLt3L2EdDFeW4SF9g6rB0w8EsN28Ml1JJYtvvLOloZIU+j81jLO",
+	"2vBTNQ+Fy3/+z62o9c8/bIsmjmN6vshNNs+Xrcg+eJxdZqmw/pl1tW3cMd7VXGDj9+h77yFW863EIm8A",
+	"2N7D3aA411v1R2anrS6833mbl0sEvG3etkVwVoVtcd28HWv36bq/ZZ/X/fF2jv7rfqt8u6Tr+llsOnl+",
+	"0fy+u3WxU7NTX92SJiSZgBhuCBYIY1NWQzHLmHpfUaNtUzB9BB85P8lEkaiioKGs8c7Xq974/wtu1e7q",
+	"bytbchp66urF30rfsMO4bSoVsoNmW0aK7hAqhINc5ObJpbhV9c5kinEPiKhItIFJpCh7Umk7m8VxRcWd",
+	"n508P7MJmUYxnhgoGYGVly18N2ckGrKE5/mQGS85eGegc+NGDN2/lNrkpIOyUrOvi2Q/9xZWD9pBOdxg",
+	"fIL7dCTpRdT9qNJGWaDqnkZYnSUj4Caadeew1ABwqjFc5imLSYqMbRsZXqrS3NM9Fv/uCaXVUrN67zv6",
+	"xzhL38ZlXChGz2JdLMwxR2lCo0DdeCPfcbG8XdpJuFUJbmbhSGLH+P4uBU0bMeN2tlGsK7P1ajUoaH2p",
+	"rVXjv80edMLqaumtLSPT1oTxvAoJEN8h9UeymMITaGXjXbjEIjdrw3buJj5nhUhW4Nwpc8V6ysSYjtP2",
+	"KnBJTb6h4CEaKI5dkxTLf5lBRJZuNl28mlpWZXV8a6RGOH87VFxhJcVW+OaBmeRt9F252XlOkPwbC20F",
+	"7OTmzaz01HIc7+bvQk3OS0L2PK2m/bnb8FG//3D/0aPBg4OHB/1Hj/ZvimDasXQjEvR4TeiYFt9uVo3R",
+	"6SAgaTKTsGlaaLoySKFBDlw5jO88vdUArZ8vcGrboE5YNmToHsWeGHad0lYOSViczVNHuElBjcqNkaO1",
+	"aK5qTckgOGtTmFedxzh+uUZUrN41jccdHR8Wr48TOowrRYmUMmRxsZA9Ov2EtLqQSE8jSWugO5Er9qF7",
+	"PE1j1rZ/MZ6mZGngtshHTCW/bSlfyFChB6GZMfaveYyiGJ1CHqmiB91Dai+MR45kA9CGe0MOqxZQdE9n",
+	"Tsmve4L8RP0G44zczvZ8UeHVUfuHftCtqLU64m1LD8NWnC7ksRsNPqCbTh+lqXtSFiSGv76qjgefPQmG",
+	"Q424MX3th+SJ5alNeH7PKWVIWLvqvSSXN9zVU67HM3Wz39lVDXsbtSBdepxsmXzdmGSNwi9ejqrkuL0b",
+	"wzbszKsjCKZws/bnhJamZDU0vE7QzqoKkTqocTrOQ8v/69HOkUVEkIqQf2Ir3cG/WaIWOdVwPhcWWxpO",
+	"sVRm7PLGyHXRRlmd/CoWGCytFOw7ZHGNeXknwRJQIuJMj9XC6CwV46tMpuqKGvWFyLwlEdUq6+/FjDr7",
+	"GeW7+4p21MhhWFs3o4sQvAAd4igQJyYTMXaP45Fsl9VUMldWhrkX6Xus51e2e8i0EGVjdf/yv5lMLGwc",
+	"9x3/Wd3iFoZ4VHeoFbXcpMc7e29g5Sq5XPSoksdlT351kYJPKX+r8uBL/yDI27IPajlbtsNavhY9bcrV",
+	"CgYY5mkF3a8+/kId2wV1f5svq6tKz0/OXtDSfu1Wlp6f2fWtea+qhsBdE0bSeo74/sc3pohjcFLtszDA",
+	"cZ0zFjpzX69naacisQnl7/nqKU2dm74IVcoGHxE+vpFVO9jGHb1DFpYrtVXEIzb35aETUXfnwqtN0PZb",
+	"ADXbj4t7msDHmoGZd8G0sCO++TqHjl2V9E2+xi8CIP9mPOJV+JHaZvlBBWL8DUWVa+MLIQrIJ49t4dvb",
+	"8jqEJfMf09+ntom35YPbJHLexaq/a2XeoE5wA9gvAVa5GnuZZjHEEcSruOx+Ko27ssjFV5m6XfSPVcvW",
+	"2JV8+atLlV86x2s2EzvanZ36vuqTwTk0ZKblWnjhcr870OyKFzKTFxEhnLufqAFygjbHETgvyw15vKZQ",
+	"OazjLnVDvRcDJ+G/i4JFbd4uuXPtWVAsubbCa++OrLs7IdZb4NysOajqVl7dm0HdCZj1qjLz7SZHhLu9",
+	"HrWQJIw0EKnrcE2iMSI/wjeV8brlkiHQ498Qk0305bbscSGfYu8Q5daKyr+Pz75C9ri95az0f+2WSFZa",
+	"bHf9Zrw9nrpaC4t1m3tu91T600WQQ98Q3ElGJ4cBrNdah6tYwdpTBGxoWq/gQfHM28dcVkCNt5qWLzx6",
+	"EzAMmuW83ay+fRXiqVvn/Nb5g9IIdx4Ov9wff05vkhiduefnkINL1tHgyYTfENbHVxCN3p3DbHuKm3Zt",
+	"+wXE3n+G8o87WPNvA5qwK1zC5lpprrVoU8X408Vty2fe5l7+OTl1yHg3feVxC9+FuXoI/3rowQqns5r9",
+	"Ni3bV33b23DrY8wrsjLOerZ9T/sfNVX4mnGwpWEsJdbpACe9e6Xrv+/02BNIVPKo29y3fU+XoXwYJ+rr",
+	"erPY9wUGLKCQ2Nkl3ddkjqw9ywwJHJiKLVKK9ASTk0UVQ0z8JeMGAJtKerQQ2P4zG7kMX9gsbPxQpBRH",
+	"iGNEqCaPWM8WMhdarxaqyUxZlwbNfVuRSY2YPYk86G+BJVe7HVcZN6GwBYwbZ4/gMFuzcHedNtDxg93A",
+	"dvxVu+FiLSe0liV5FJifxTK0g9xRsRE1qH07+HxXdC7rT9wSQaaU7O4OsWh9oMj+OlF1i+iONT7tCpCD",
+	"X/0t2rtZ4GuqGBrMbuNy3qoI7M9VgjUtlmMX1726SY+LJfBqI4og+Nu4mGqGZSzSYtklxGyG5f1uU6xi",
+	"fy1YA8WkvzvoA7XjIzo3HiZ45xY4Ipke33H5/ldrHVf0jYe8tu4xH+yPJif4NfYjigPzWr3eFirRBE1Z",
+	"68xbj7wMf0vAFB/qQCkFDY5HfA6Bphpj9B2KSSZZXPkU9zDuYDozVX8NMFDicLfjQyz+A61JgrbcgTZX",
+	"6Gh1ENsR0rsUIF6R2m7hCKj6IHVzVCxJYTTFezrwdJ4XPHkjEGtz6Qq1VPO5NGufHH+1d3z8VelQtTLV",
+	"o/5Pf/uf9vf77DeQznO+54TVMvG8c0jEyBl8j/WCIie20WiYzpzHAtOTfLEYlAQDX2wJbk4macjKsE3g",
+	"L1KNpJoLsIxW0uAwR61NtU1hE3NhRNzBHJFcYVdKiqjSk1Gqx45wyDjUkdzvMx+tIlPG/bfwDi+sUAiV",
+	"ShM1mynJ5shOEzLPPnl5xAb9fu+TLhrH6FTqDsmwHIEpkmkIRAqc1x58G8xY+o2bQlrdvBqMRirwT19l",
+	"GKYHhbQQTX0hYRoidVQQ+K1B+HWxLY3G5JLitpaFTtwnDVLjYEeMRj/jykiazlhFAtvV2GwJzLm4gxSn",
+	"0m8hpFM83o9NeqdY5Btw/o4aMc2qGaAX/FJgLikG56JyF2P82O7gfLcBvQ9jlbe7Ykk6brxdXcmpehxy",
+	"gvURCjXr3WG4sz+9n9p+30d4c4BM6AKcIYS+jMuBiJWGyBuHYlgGB+2AYHhDGHR6QyR2lmIYNin4mP8w",
+	"EcKJJdkdh5k6GcdXvruRLZ0dA/N+nwHd74qYuHnG1azqX1ec9F0obHceGb2VRc0JZjbo5J0DmCuh+zd4",
+	"+sJ8IDjQhAUAu+tyuLGV7X2AdxU9XR3w6+PXzxGZyBkQ7c10T9fYLSUNU/n1uPIThPFW1zUmhubB11G8",
+	"yuTNUZO3C7iuWppC7X87kMxd4DfXxWWvRpfXjnQD9WxdSTeUf/4tWsg2neZG4O6djGLUu76dT2NX8/8z",
+	"bsQN9v+7QSk/S9RcVDB4FlIPS/QiXJohELh3mw191DrWT9m21CJ0dLqQ2iEb0QPq4JTax0foudI+EB2f",
+	"HVFHMN4qr905JMQJGvOcY10GYpjktrBNN0Cgodp1exSeEnOwAU+QtO/m8kprsp2bQ2p8Uxsx/OqHBtXR",
+	"9zGzbHPG2upKcK3XFYu6YZWsscEhDO6ad49cIFg9m89jB1Rrf7fFJd1/Q36VvQ4rsDj2K/zB6tuHrF+N",
+	"gFhdBanMbmWzopY1guw4PPvVjsO7aQvXCqReEG2G/PFx4k76xDDoLXmSPfFVzJ+VEOmQ65Q9rCJoegJa",
+	"SfRyC11ShNsvfwCjkss08unsYsY/4zpbo+z969+5vTo5/px9OWifDjoWP4U9e/GYfcru9+7/+MO//t3e",
+	"GUpNz158CUU6+/QI6nNiBv9Yp1RliJ09LgN7S1RNqWYIEIMQhW2sp2cgHHMk0ZiaOleqBSqEPG4CPByj",
+	"15Ca13s//f1/uXKZ7dg4tI0ZH/T2Kgxi5AZVKcvJstkcUzYI8bAtAPhgVOKZ6Sxd8Bw+s+hF9CXU72Gx",
+	"+7mcc/BBNJLlKpTDVBOUUO0IoLbQwiibWOIMmUNWrmUAmlUsJALRxLMMJEQLUqBRDZ+pQlgIhRK0QOSw",
+	"rivrV00Ggf6BdmyHWNCu8j7d4m6i29dFttR2RO2XDz6Dns7SyrNn2CXU781rv5zars8o0cDniu1ek8II",
+	"aSA8wd3DzUBZtIsgGoBmsSjQJ2+/ZtqAVXOK9gWORSynzRZL152e8sGDj1d7O/v8qDt48DFrT8V1iV3L",
+	"pZIISIvoemoSDAbDULML2ZjSVY10X3OPbqPNri+pOOMymwht1tj6XhaZNNbMEiHGLrqQXr86Joe/glmB",
+	"wojGGbLJTxczLhErC8HeqPT3VF3pddGuttkq3qMTJMNi3qg7ZedZnpnlrnW8n1MnpfRY+6GpzLf/ptox",
+	"prfjuqwvcLnRjgIbvxZe3OEaZClrl0WcLbVAY+uwzLDVZpRuwnj3pDa0aa8x2Btxf8gkiQsAWXe1dFir",
+	"STZX8qAmG40Rr18db29e8O2MkaqaFwdr0hK+u3GOzJyf39MURv8ndMMAJv79+/cfld4eeH4PQpQmWniE",
+	"XYt5ghxaSUEtZJKyksl3KpWhoAN4/vrV8dBC5MEnlZPji/ETTB1uUVgkFsrDfnfwtkv/GJT/eOX+MVz5",
+	"R/uvv//Db7vfrDzvNBaUhdGPYZ6NNOeSgnm+ycLn3pI7GdvLr86XN6skWdqqEmt4ICJftrJywEoWEZLb",
+	"KsmEq7DCq6OVu6LO/dZIV8QLblHU1edk72DIcJ/cGHISNL5x3O+e6/OOOUl+JC4jqExPWvkpyFTarVBs",
+	"cIWsAD4jAADyMcfiykRrm+BmtMgnhz4SwnJ6eo1L5tkhtMK9abVNgM96gatOrpD3d4HZjVx7j1V/b7rO",
+	"6i2s3mpbltuNNt131YLATZV57YKtuaYyd0uxtpWb3W3V6YU3EwnmwdZMgvBSW9g7Fa6SCWlxtN+R6+B8",
+	"CbtrywHTbWEJaYUUKLvbHoEizGzEdmcLQqyUkL3OpaLi53gjlJC1pS4Bli1qI9PM4+8SMZKTa0mTYW30",
+	"/0XOT1ez6lNoT6cyIRZUMt48J7CmK5ZmlHY/V9p4dQQ0D6h6X1nikL5d8rb/sTQ435Kwz4gqXBLzmp9D",
+	"kIk1r5y6YawriezJvOQbjSx0LpJnqCfvaEyED2tlbn0V2dK7Qf4MbhiM1lAAicNRc+wXM/FWrY6gyBU7",
+	"wiJuDPZz7Ndm7C3m8y3bb7I3Nq5l4Ee9q0KX24KZBYuBqu/PGBdaeoqo51VXz+bYrmqI9M8QHrqyqDfk",
+	"eQYv/58kujHymCPI5K8yTQGPnrR+1qJyd0Vgz236w84JObvkvJKcvz7rdfNpT9f9QNUddwMqvk1Qkbie",
+	"c4Q6qTnCt+iOcj/0Tt05d8g2KRRu+34P32zkc7lqhrydl6UHd6mDWylX2OBHcPkwO83cfwQG43WhKAi4",
+	"Ut+KKhkuSHjq7OF/SvMzfEL3s/A3bjD/LeOr9AJjuJrD63zxxC0J5O4hoy0civVYrYQsULtrVpLIJJhi",
+	"hYKrxLJ9DEETrVZMfrYmhk81o7IayZuxVmWohC3sj5jGSOVbVs+xbZ66XlqRf3YGnQR/P6N2G8Z8CyNA",
+	"JW9up7wo1+mNUkbZxTbrfsvUy5I3b3erh1fdyrV+6u5hm/PmTjzEY7t/lyl5xqbBuVS6e7oXXgm7SDcr",
+	"d8VtI/3XXQYN9tyS29zTzH3Hgu/Ya4vXXBvfLWpp/GIXzR0QBS5WebxtqXlUkT0pZJq1V1gAgypanV5w",
+	"vVVtENF7u+7C2PP3dfltT97hjXTjClRuqJuotlILmEdogRc8BRnvNV6hb25Bq+7O2zJAG95+T5zEX7Ib",
+	"14FCsQ/LYom2mGa9l9snEG28woOj3cTmX9kqBzXkn0IIZsQ1DZZq+B7a2iamUDlEgRY8MaIA1pSIuWGG",
+	"n0csz6QNsOYIC18UGb8QrBBmUUhb9qZq5avaB0Pfxx9Ho+t+vwv/+wn8z2fwP8fwP0/g4f7T0ej64dNv",
+	"ftvo1ngF6sMtwSpuIePfBgBmTdxF8EKgCEG6lFqA0Kk8gIm1MlssxRIjbftwnbVuSJ2o+S7uB3i9qQMc",
+	"U/M8tUgKYXrsbKquJMNoC1BBD1lmWMKlRfTE8oOY97JlEC71GLnSJ3YiFWmz8RjAZ7cUcSCnaYzhEIXK",
+	"1/ADDGzMtEH4BrrP8yyBqU5Vlggsw6U1Fl2iDYdUKDC+YpZhGUJJ5yqMmmRtZ1g4GAx8aYbMdHrsxJdx",
+	"Q6sxfcYystnCGS2EDWFwTZwvKdBGLYquWApNBYxXEQa0MJrRxMEFMqZe1mVr7UTxmUX7w0qSMFCcvSX2",
+	"lFG+Wrv8hp1nWCG502OeqePLthmUkIIFNNZZAASGuwIsPzhBLNN+OQ76923HZJkve72n0faDQzroH6x/",
+	"y1rFCXmZPROQ4KQWzYeXtXFAkd20yJn8t0+WWYfecH+wKby3GcrBMYc7ENG+nipYBKwrgomACy1K5naI",
+	"YR7SpelQppOzey/SzDBT8CzHK1ddyaZa2V9P1axskAFuLMSXGTVkMblTbFFrtOW7qtbg2ys3a7XsdW8k",
+	"H5MriTww5bsVK5WjBaK6uKS1eCRpPDxHM73I7bRpSBZ30FGdXlBG0kiu3JPR3XHokiYOdiWJ5uJSdiCN",
+	"TLUQ8i5N9+dci9xW2NyIAwn9fuZeviUuXhX/Z9Ug5j08W0AaWndQGFPb4ME0ikGNeyD9WUasLqWwWOCJ",
+	"MCcAtw+CVZlbkMjx9rIyD5mwdhMHfH33rRb4pX/bVbHfnhypAfimaRymWMjESW61+6JYiNIKTyDPDBOn",
+	"Z1Txk0u2H/X7fbciwKBBz8P3VZ4KbewLCCUEa9x8bV06KM9dIJZCBNAbwT8qoDPe0FZugl/VgPI94VUG",
+	"GC5ZEAe8KfmkekbeAa30nZBHZ7DYOyazrQn41g3UcmbT/J1PJhWXGRkJ2pL99Pf/wPbXVTn3R2vXtGMt",
+	"crEG8QTKpWKIu23aH1qBSfxKiy2EXFwxnC2sRAhyGva9dsdfhkfcxklAZ7nCkKp1WcyeKEGsQk5Eqfw6",
+	"9O27RmBTCtAJa5HCUasY628XnMo052rb2OHqwM9sL9WnJ0Gf1V+CgOGVn878aKo/PFMUXRywqZ8BcW7X",
+	"SlkCeHwzm6xELy9yR2T+C6oJkbkqWO2JR/p1BZhD/jnLCBcDX9addWL+OLyfV1+4HczgehOLp0lXzKsZ",
+	"UoBKtUoBd6ctDz3JTARn3BPqzuACu6If1q+TJiwV3CVCovbvOsjnYLO21gVqcMqbIS2CLNVKUqrz9/ji",
+	"9yVSY0l+1c2vzLWJESH9hqdiscjS1cBX3p0cdZ9+890nb7vhnwe7/Lk/eNtoHgoSjTHijSfThhjAc2WM",
+	"mo0X85V8DPjrHDOUD1ls1HycqisXWmbjitW8Cw+Z0CabcQOVz3NeXIjCvwZ/sNdelbhSITP1fcPwbQfA",
+	"NfGrLRmnm9pn2NZraMo9eqXmj6lF9+SZbbm6OjYN+9ZZkaG7ghaMtX/3+nnE/vL4d8/Zfr+PSDRRGXLt",
+	"q6O4Us2Z0SMJ5Cec4pUoCaSTmWWPxUigNm/bOUkob3uJD18f2nfGYM6MbSkZ96Z7SAUkZ662NIZ6XykM",
+	"j0MrLljbsotFQXiVry2mkRHFDPkLjhFNo9k54XUkP/6wwP4RzGYKHUCmzzj58Z9YG//G2lPQ0T7GJ04m",
+	"cHVfinE6odlwbB7gd9IJFKssRMDeMjnJZGZEWKK6WjKT6zdkNJHKLvxqJeqRrJaiZu+vEnVwyLYEAPDn",
+	"8vbVqs8z2XQ5LsbJdq76ktC24LX2zTNHqaHj8ObP6T3Hq28XnBLS0Oqs//zfx2IyAQvf1yJPpj/97X86",
+	"Q35rplc8M+Kwibp2vBXdqWrI6GCfsjc//rAYJ1scsS0DKSpnuFlHd17GLVqbKWnEOOFFrm6BhPYcvmbH",
+	"8LVFD2tbBrfv07mIo3cXc3seI4YHCE3OqKI2gDddFELoZnEqzXTCi7SS4ByoQ5BZoZt/uljMxlD8fsuV",
+	"gddzdbXl2zs0vMv2bD+Am1TK4FW9bY1wLcSaepurjspQJZ2qwuyy1PTB9nO9wRkrFzNRYAKhf5H9+f8N",
+	"9OiIk/34Xz/pDVi7fhLT7CKjUPPFONkOOapeKgXpLyRTu4xlyGGoyuZYUQqXKlyGyhqWpBjQcLgIkTsw",
+	"TVLnLbLZfZBTeJfswhDhBr81EkKixGSSJZm1QG53X3kJZMtP0smmF5vmlGa60snKKl4UajFv/GVD1iMt",
+	"9K5jQUFq27O1rpxM1NLmNsGZtw6xc4ZzV6emsqKhypXWouv8MkUV4qhtvFsW3NxtMCW8erErfd58KBqu",
+	"6x1fX3+7b0M067agspJ2GsEQ6903reIdhF7ad9dNsTZmL0OXJBJ8HlTx9fNZ5V81ITGQUMNI8KrwuWFd",
+	"HIfb0uYcSPeQ67KjnOXMp2UqjMuIoqwmMxVZwWaC60VBumKofDZonfQFKm5WeCc1VDfl4bRPzl7snTw5",
+	"ZvsP+4MHw0F//yH78b8+7H3S+7hDmpVVbzONwT0qXSRmJGcqFfmQXf/Lf+hT49CWbsPfnSCyGC1V7TyT",
+	"gpPuBXAV9GcnwgxjbSEg8VImq93+SJK9yO1zaeguZ26xLJxamEyV0lhKjMW4d/EwKHngqqSilUGbsuFw",
+	"JW8s2EB1dlYSIEayHkAdRNNFbLLI8yVLVIGdijRYLoizhfTy4P2YtQVPpiNJcMyVWDMOnmTOCpEYLkGh",
+	"LRjfa//09//l/o8/fNWBhgoxF9xwl67ZNlMRAhQTXsZIIr4mWUsFKE7oxG3rvet/+V86gDgyi9if/zv7",
+	"lM2sL4GsEA7cJ2btRfsUXj39l/8lwngDnF0CaCG9kQRlyMZb5BzBS4C/8gu7HjfoaxF7wz5lpt3vPXr4",
+	"wL2NNWMH0Ui+3kbNWrEHsJvMASP5K7EH3FKv3s5pGyTwrYZ8NmILEOEEbzJtxNybc5FESwLVTEhjjfNV",
+	"moYTubV9d+e4UkeYu+Z0NxgTHgsUtIFoJ4UQqZoBYBMQShmattmKsDHE0+lwt8ZT30ag2zCCNT63WquN",
+	"stWKxL9pC8m6+koUMxcYHdQyWS+ojUPRZ5UgawboTbfDkpLRM9nN+TkrBN1bNtEXT/15xnXETs5esP39",
+	"+w8GnYhhZBR8hRxoAKXGRUqxY6UpnFihNXjfWWQrrW6zaNEEEnrEECYUAZYSlYqIid5Fj8Wzi71ngP65",
+	"sP/9w3w++yauxafamKk10an/l+7/9Zvv9qP7axwMX/Eig7P+HO7/HQWdrxEeYH9P/3EQE0rVpW2NTRYy",
+	"CWHUfD7j2eMhg4BfFs8hyTeORlK3rzsAB93/8YcZv25fR+x6PMtk54/JPm0f/kl3+YzneQUliyqpj2Ql",
+	"LfDQdkGCCUBHsbZ1E4JZHuLr9/Z7/V6/E3bPfsuS/R9/uG4Ej+9vq9rub/niGjTAGiHhWxF0j003UdRX",
+	"pYuv5hbC4rC2toBcBpWYyPJnnYwVpIiGKvWhs2fOtQYuWUUB3OTasaN7SR/av57i9zR2L8D+HJ7r9Xjx",
+	"t8m2flfk9m185xtgJtNs4jLK5k37/5vHiHPX//GH9gRjN0H4szB2nT37j11N59hSU4m0YPkoGPqcJ282",
+	"ebpZoZQJKvMSg9h1PNuv5DZpQCE9bpFrCrJX89rD9fb9bx5/T7HHZcCyA7+yWo7D19jSk7AJKHRbKNCm",
+	"RbwzDPLSdrUS5mG9frhmZe0T9NtpW2Vgq7j5IALAMsebM8Md2a4CmlaPULilAQqqPYOBJawae7BlgmhI",
+	"XD9feVJre3Cw2M3RXjO4H+ybDji9hsVyLhK+IEACSm/f7FK4rHH2bU/dyqZXGlqdzg2WnJUDvXpLZjIz",
+	"GWAmQQkfVEwBfd1kcpHJi5i1j+FpmLcXjii8HG1D1sxJ329/S/omT3wzFYIJmqzN6xZJu7chpHDa22sO",
+	"1b29Ibqn2sUOW3sn5VbXFBrw2gjgC1qr3S6VxTcXm/nCwspWXosYBfazftSMq3Or+nL94P82CKS3vh9/",
+	"VmCQbZi+vR/CbW4ipK8R0faYyzRLLeDyLkQEpUvFGqxLnIdwWLnWprkGeRXjajc2Y6GFUbFtbmTGry38",
+	"LcH0jr3jqUn7JtupD/qhPBHDc4vxi9ZEbI1RvSsw1BUU4Ze41aqEYxAGJ2gPpeqwU8S0Mo3Cw5Lxskfs",
+	"Q7/J5nNSXuiaZnCtHzIxm4Plt0SuaYRnm435uR43Lcyf/7fvf3P65HsfCsGTN92E58mCTL3eAL0i2DaN",
+	"btfpe3Dnm47F1/7F+rEom6jMcy1leLqLPCHbbVh/UhpxCJ8Jrk2Xoqa1JSDdA+vA9R/7vQcx++lv/1/w",
+	"1/KPg9j+XAE2Qmi3kUSjAMkY9fooGPNrrQjto3wmspQzYRjPexH7y95IHk8LNeNGXRQ99hl7+PCAtQf9",
+	"/qDDBvsPOj1nqHBjgw7390D5//GfyMHBR3LVfhEYJ67BIEGEzXhSKK3pdIAJi+Xqoo1/jeTZ446vgAaP",
+	"K9PoRAxL++F86XsAbr2S7OzxoUVf5SNZ0pOaOPaB2SFIcWS19jYQe0a5rgQmjmTsqWGscJ90r47A7XwI",
+	"vRqPIkjygKpd2KO3wOjFDMbGzxG8JPDtYE0XVy57JNceIcZnCpOGwPScSVv5RqoKy5mpQgAeOZdsyvNJ",
+	"E5vqsSe4HKRbEhI+5nyWh1KzTPrlGJePoag1ALnX0bIm2bWgiEi/goATj8Q5VpPxTHBw7JS+L4buM01A",
+	"DUP2FS/aSyCbf/27H//pxx++///98P0f24M//7dOxP7832hZMAcBppNLohsGZANuPAmvIzuznIUkT1hT",
+	"2IWRLPcvYpkRRemE4syhvLNCwE3RLpVutzB//m8UWjpVV45hu8jfFL1tUkmaFOBRPsXAzPo07VEaSXeW",
+	"8CSXIwXizgyRtSPxs8dV+HZJILaWP9C/7N8D/O/SP1/av+m5xv9a9PfKlmwpbHsu9gUNwf99Ii/Pvi3M",
+	"X9Werfw9aPjo39eerfy98lHlgQWb93+/hHm9mDzHWYWc98Xcy987BTr7cGVP0czyhMiyE6eRT7I8byrQ",
+	"SKqxBoD7LVB+XcmGt1GrynOaQv3qbozqB1Gl6433kl2d29SJ3bRE4EKcZCJPS2yMEmnDrtt7XbAa6IW4",
+	"Iqc38e7m60AKkVJgtbv4jELw1ubLpc2lS0cn7ue+ksrYLwGi9UKkYDPHl2kU1doNLA5mPWTUNq0VylPw",
+	"MjKDkUSbD7N5y+z+kHG4A22swZUqm4SLTUnBUvTlMTUZSevLY23YgEcP2G9YgSUT9ZxLDVOg3Gy8n2C3",
+	"HvY7Pl251IYCG8YgaiLKVULzMOO30zh3A31+P3DFG7+8GVHWtrx6DDH8NFkUEFsOM7EFpAQvRHG0ME15",
+	"K/BYFdmfUDIass/wXdJ9E8w2d/ntDNPC9bCStI7xEWWVLnAlxRXECXgDgQriQ6aFoFsKtgP7g4yF666b",
+	"bZfSw22NEdwK1K1wSKUWMTVm3nr7FtPIJmp1Stg/JEeLgird6jAZHwaPd76PZagYlrxoFIGYqUeSV362",
+	"GY6iKKE6qYIO3ONO4KykpvAkEXPDZSJAss6zZEkQvFrAKjl9MiJhG5uK2DxXmM2CJVvDUqoaT95CvpHq",
+	"Cm6NL49sFAU2yWUFAmEkR/Kjj54E0RVM86UmZAWUcnsffcSO/PgY6JRqNl+YoHwwyaBKUhxIyhLY9iLj",
+	"rkoiL3yqk2ZwLCVxj/niPM/0VKTsYpGlHMFabLjQ+hgSKh8ZxpHAEysQQoYJcLGRnBciEanANp3BVAqR",
+	"urU4XzaFm5yLiSp8zUrKyhlJ2lAbYGRXudRxKPbHIo2AYOasYTGu7l/8BTtW8lJIfDaSXSq+QteUhXst",
+	"BNOSv4F0Aej1Veae+goS7ZgU1CHzRqwYGDxjPL/CDSsyY3x9CBIzxTVPTL5kOrtmE6zhjUn+FIsN37bj",
+	"QX/wcbd/v9sfvOp/Muz3h/1+jyxPfx13huyl0uaiEGdfPnOnZJaBRoUVK3TEtIJm6F7DF1JbvUKX5Sog",
+	"DsshraQaVXU/MoyrmmS5EUUPWjqiz7WQBuFaYFaCxa+s+/+vY2gQUadZgsj3foG0LQv+oPdx5xDXheWC",
+	"z31xjXhwf/jg0fDjftwJ0IDsmJGKPErLEIFvJJ9h+Xhmjx9sFxblOFfpMmIH/T6Lv12IYjmETYzpN3xQ",
+	"JpL2YLtLk5ombHhapinemW1gNQ5tISLoDt3BvQd/GCN+r3vsVBHmDpzf+VzItItqpqsICMmoRObAOWBH",
+	"MLXND1+IlFolawY5uuwVqlmcpfEeVGWPCc0GPkkhno3cCmquGTfQ1uCPD+6zLtuHnbfbnuSZkCZif8kv",
+	"+RlyWJZJKrQV2S3HTDi75bgkL6RA0kcmmaWCDxEBHnHyud30TLMYpYPYl923tWfK6uQwJHivdOy4l7UC",
+	"jgCiYWgNto16M6NvWloyloYWktByPK8U0hTIkksM+ggIV4iUvuqwKe5KOSRuYpzqF7jedJopfImdPHny",
+	"pPvwwQEjU5PuEUewVJnwoliyL/gXrAx5WlqKpjBN3KJUCbLgietM46gpWAB/rEQHOHYdgUjJqqYyKqTv",
+	"ID4KpUwHRw+mrthZQDiex0yKHGd06jKMUJ5wp4bZC4dOimbtuEncGjIUt+IOnvZTD55tm4JFslX8OYj3",
+	"eY6EhpYEsmXA+iVUNgVjJbA3R+V4XRYwWld5AXlyqhK61v2akSxwLg4t9Wqmp2pBDRF+VXYhVSHcZLAO",
+	"QqrwW5hlxHQGhy7nRhTM1kyn/Ev6grYembuaBJKFjpxMoCN7Z+nIWafwxqdCqLASSEkl7xiyfWYU+/iA",
+	"HZ0dn5ywXBgjCh251BpkkD0QpcbwP0P4n24c0ZR4gWqSNT7Qp0Bf+G1ZT71kVWBTeC0zrIcMLVuYPmgt",
+	"QOrjhbDbn7q7DpxceiSPWJ5pY6mRS3ZRqCtPaYRQ1Y5/9+QV27vc3yPuBwN2T+yNHXdGMtO0r8h95/wC",
+	"Vg6MRplEZeOKL4ew2DbvbWgVm5i14V2msz+JQxIocUDoI63ogzg9q2508JjBQiaLQqvCRvLOgSGohcbu",
+	"QRyV4tqM7SsV9Dy6KgqNzBLe7gSZyFgzii477bCp8GV885BmQSfCwkMZMdNRtbtys74Q1+aYHtpA4SnX",
+	"45kqRIx3u3vvc66fw8NOj/1eiLlbKU8Pdq6fVnq5mmY5UmDZKEPQoAWkCNNa4tdcMsQRioON7NARxM+D",
+	"Vodoiwf7KK5/zt3MHSttx5W9t6INUrA90mgk07DQis1VnpMcCX3giTtyP2eaqTn/FpAo/GXM4pf8QrgV",
+	"O0TqMVNLXlkiXAES4uB6ISLkwPAv0rgJjM1uYAR9HPT7SPdI9ETWPoQkKyy2J94oWL4XtfYgLBznCReJ",
+	"jTYZyYpjleT1UliPAqVBdyiT+mqqchH5k4XnA4f0ZVUSgcZKlSrkhEnOCxGeZNpXkG+cCEQIeVbaWQE1",
+	"85Zy4pmeE4DSKKSxsyHuhrrbSJK+Absds0ItjLBWkB0UzSMLc4aQoAINDyPp6lRSP0MYyPf0B/set/B7",
+	"Ei40+96KJt+P5Pfdbrfy/+GjUH9l34ccHD5FmY2Yv2XYUbUAbWk8h2CFPQxN+N4Vci5ZP7N9hdox+549",
+	"O3l+RsJZYSnh+4p+15aKZBuSgjp+SE6MtLphQDs6CluI7LBLGizrAeFRjMKiVBKWLhHBhbWaqhFZ8PpM",
+	"Yu1ZJ6rR/KrKPvseVFJt+GSC2wAPNVUOojpiUSll1dYVCw8FsoveZuasPRcWL9Eq1bxIpmAfu3kVbjtj",
+	"smaw76swnTBcFJpx92CwC31DF6gPkOqJmLmVFqCzkUTkiELlwpK0U915YuBYDJkTaEVRyuOwbL7mgKXh",
+	"kcwM+xuIIEdDKlJh5YOoEhoXrLFvyS5CZkYSFjm7xKZkxbbiW3SHwOKHohG0x17SPNukkUOt3JQbbvOr",
+	"7HJYnDWMELdLjfnunis4DMzw4I6krV7s4duygiw9JQQqa2/C3uz0/HqXrDRH3o/LiFyHZB4YFRlQpK1d",
+	"ZYQEih7JBmPWcAWl9aOPQLpVUnz0kfWlzdDjmM7IYe/mjfIRDEGkHgKWvI8F8WQD6mKeCe0laXjbmXFy",
+	"YQSm7Yzki7mQRy9PmLMNuho1DiSFW35dzhwUhdJsOGR/+CYeyXawEqhvKmMtJKj0ikIMm8x5rpglhjJk",
+	"2sBSHzmcqIjNeA72DziSTs9AN/OleiMCmNWD/v4hqUlZGqC1qgXQo1sm7JHevt9j8d5U8NxM/wTi5x5Q",
+	"1ZL+OROmyBJtLQ97ai4kn2e9JZ/l8UiiKUkq20k7dquGq9BxV+ATdLG6+w4drriLEg07jw4ePGTzQp3n",
+	"Ygb60pw8CZmSe/bpb/9GKxlHFFfCRzJ+Sc+dxy+TNNUM/CgRi7EHHVuzEplRJxOBcLakmaCszEnhBEMG",
+	"PYWDBCP6+FF/n35DjDIkf1uklKwekO2AYt2ev+H2BnsVx3nM2vGoNWr5LUURBb/vHFLvx2dfsUTkOZ7f",
+	"vTyTQu9ZsQL/I+xfCeQ52UewJzLGBve7YJdI2Xy61AhGAC3YREPGpoKnApcZH+93XI6G7ejhnhOyYzuc",
+	"UkKE8VDXDtN1VdxxzZE0RMoGpBJyMx1mKSlcMQ1ieJKK2VwZIZNl9/eCEgMpKMfq5rNMg7lSWo9OuPTY",
+	"ENlPM+3iZQrS5bSV3PcsqT13x4PppTT8OmJXBfrsl3OLuGaVgQAIjBcChLxDIh6HYgyu4jzv2tbOQVkr",
+	"BH+D6Y+L3IcfOZG57coWmgpWkBMvRxLOXES4xHRs6Q0QeguB0mZWrhF7I5ZofzgYDICXP+j3yRoNDHsk",
+	"Ry1fFAsJfdTy905slZpxltoKiRQEewEDMSq0DuQKSPgLK0FlzpRU2piwocAcSEzfWcjJYOGkzvivutYc",
+	"0j2B5BXOwuVT0poyXVA5GhuQZb9BkDjLJk65sQHX2l4v9jJA8+j5InkjkAXbsemyICVA+cI40RXMuGEP",
+	"+mDlIaPnYQlZjbEbZDB03K8mdV4Io9kDmxkMGOGdnps1lxpkB6OC5bGWhIDTRkwvkkRoVHNwfyKrbVOd",
+	"eods/O1CGe6uRXtYrZnFEtfJk1dPWVrwiRlJ/E83E2bSBZcOn2fdghuBi9Wlr3W3/zFrU3hUGY5hpfNM",
+	"XoAeG8MSPyPDgOV4NkzaTIUmfHIH2gXbpr1h6CpLRb5EcaMzDBvq2ubaBN0Ge3RPo70BEoLL107FjGeS",
+	"QpSRFY6kXUSNXuqIlFCglUQtpBFp/XstoBvaU80W0mS5Ddkhysi0tbGDO8aaAsrvX6I/CbkyAVbDU/yn",
+	"OLz6lJ7Ztp1C1xvJl9z6qPB1/JclAzyetqR1fCpMseweTQwk5WH6L4arpf6k6JF0KiattN0zOqSOYvzb",
+	"zshGEgPNkr63KKvcsb7KwesgpyLLKYpKYCByJpceO/JLXsUzzgLRgbKpcf1xBfE8SCVJPKJlwJM7FwVc",
+	"2jDuITsX00ymTDIbBgDnlSgH3ReELS/tqcqMO/BkGQSefyGkDQxKVCrciSOrPxNyMStZTS1CxmbySVvi",
+	"Dnsi+zAHj6QMbIes7aRlBQcIeroQJP5bsaZrx6GKDjBe/9dIVo3N2E5mrLmUzfjcphPmCy/5WqEvC9we",
+	"MCKL7zosozZ0GHX4H/+BxS6uB+7T/b3r8ql7AnEOP/3HfxhJfDigp8vVFv69/aV86p78cRA8G6Ar2sZP",
+	"+O8H8aGPnzqY5/aXp2pRvMTczgfls+xSvHwWH5bWUQLdjPe7A23fgUzx/QEaN/e79ytP7+PTQfXdAb17",
+	"2j3Q8Uj6x6cH+Pigux++fLBPDfevw3b71/Eh8XldA4+370j9daNj3rZBj07hSbSivNPyI6iqptrP8aEP",
+	"45gLq+fG//yfbWvPF7nJ5jkU+Y3/+Qf78HF2maUitprHVVZYEkLhmPyZeHrpGFBVbDw7T6H6sC0Fs9Ci",
+	"4jGA06Gd2VPD7hh4HTp+6U0f9GQk7SzdC/TXk0shzTE0DM+OwZ8CJzXuDFdcEFP05wPBjyT5wZxvphSO",
+	"Ei6ZmFGoKOkeqINVOIS+ygxI6ZcCz5qYwaVdcSvgazxN7SHDJhDVnXsL9nnBZTL13mbMuMnVxQiTUQqe",
+	"GJsqhDfsfm/Q67N2jfnQbddB9SB++eLMmuEXUu8l+hJuD/KxnS7ksb50KwKCPBoSauZFcjy6yMJ2bMS1",
+	"oXZABonqblLt66F2erXe49IlQ9FJQVtcW3892n53kVVKplq/zkl8b7q9my7l5qsWre9bCi4U8DJqhSJg",
+	"q2PDINjKbcqCy3SG0248EXgUhiHdE4H3sHp3TI4F52NaOR0sJpjzpm8q54bWqjw6PRwCKn6rJ4oEJXtT",
+	"0BSUJvkY3ZK4kxGT6sop6jZ2YMhifq4uxZjr5WxuFDEuqMhxFT7CwWR6rBZGZ6kYE5S/3SPnJh8DLUxF",
+	"nsaEX03S+cI4u79zFSIlfp0VogtWEm6ycyhXVb2sSUTAO5r0LFuMDNpRE8u8NGujAoUK+Mp93wkoN7zz",
+	"p7zhvgdNDVVaYnR42U45IvvgPl4ow+aFoKhA/IS1f6fcUF23FiIodItqITST4goaSZTUhktDDThd9yny",
+	"d8/KcSbA4l2AD/jY4yegosY0JRCZfPuZZs64dL+3D8zHxjPf7/V79zs99gVIr8D6cSGH5KcGXxEaVv3N",
+	"ENOvf3gVsREmY4xa30BkePmqL91JwS0haTof3hh1EuTvcIedyKeqSEQv59qMQ1NzjL7AWEnxYjJkf/gO",
+	"AgHfRuw7GoPr/+03fg1Qdz+zajawGrwJkSxz1Fu1lSuluySpFFWevSHjBSwHrOyMxW5CQ3S4xXQ+gKpZ",
+	"jMVzYlw++h6l1C58AQKeVjMBTLSedBajbs+sKWdBUVMin7D2yqtD1gefDteVKQ36g353fwCkSby9x75Q",
+	"9l4h8HfB4CLH7Y9J1/aWqED99ukHRlXJ8NBj/CDXxjmDgWpKl0ssrpEpxTYGAUOJlmT3bqM1xR6zIbmA",
+	"Ep7nzkXtrKadIXqYoWl/u32XpW9jemNFJ3ae4ED+OfRWa8s9nWRNg0ep69Ab12/wL1CAP2tCvsIBrXbO",
+	"11nfoZkVX4RtpDIp2p+an33vO/rHGBZjiLqoHSZiUdMAgdCuelUBITCv731X/vF2L3A27Z1zk0zjIdOw",
+	"Rjz3ERBIR9L2hpsekRrj4gphS6o+KOyeBJxuGX2jS9WvBAqvxPlELE4zqt1rbwq35mM0VcALeEgveR7+",
+	"e0y7DY/sNUjg4i5NHpryEAGUt4GYXjH9JdK4TpxSXLGZwJigjvVZWynqnmbn3kMxcQa3GyxszBrYkM1g",
+	"PDnF3ZmrLBEd0g6dpIaXBwVzgF0V3O1kEj3Ysz24kEJduyHmhZplGuTXoOAmZ/O6kTgVcNukMBviwBUz",
+	"se/k0DmU7umaBciNNytIRkSy9mIiFGRz0fY0AlealRuWZppT3LlcTUpDbpK7xcBZu68mE1HQrThT2tXh",
+	"Itnq9QrWvJW0Sny/TbvLjkrygBNrdxHkeaLXOMBNAhG7BmdIuP44dOwcMJhEAREhDq4sYg73LGoGGSTR",
+	"F5pIRYIIFkhVnUOX04eH3MWO8gmhiHHD2hUZcFXUsyEn2Ep51p343V6RPOk69WL3+okTglU8BJxgh0IX",
+	"sTcRe22R56CdBvA5yzpggQKgvykvROStxOW+Wa5LwOqodATjRVbUC/C74xL8njNN4FQI0A3NrMHotvc1",
+	"DiqEy3/6+ckp3fJ0xnF1wrUBFD9rHc20Guz3H/W7wXKVnsQ106LrEg/mvBDG4izBe58/e8guB9S5jYN6",
+	"3dAI5uAx9sWrJ0yLC4p5cJQh2IvP/oqEVnRmEeKGBiu9LcbHsRQlVXyBZEGFYfI+VIgucctBrUCyRJuw",
+	"SBm3gd0FNFEIjbNsp5RBB+GwOgrNSujAz/Dqi4EfynugU4M6DeY/ZwfAoz2iooPglWpzab0plCGBSBIX",
+	"/NKNhqSeOS80FoLBCVC9PdZ2zCPgokRdHN8D1nN89hU5btCbAGwXpRgMM5LGSVVoZXMhcSSw+FBDLh3H",
+	"DtxZNigfG4WjPEMogtmMOy8biJEAd8kXWqAloFn3R/Hb8SsqwEvGiFTMBUYvKWkdvUthOsMmaYH4EsYa",
+	"Bb6zGEMiY7KlXvkIOhQklSzDxOGzFK+tHqtHAFr+oYOoMyS2OwhmwvsIiQ0VPxurFCpgLnB950h60Gdw",
+	"q6wyhnFjiznwK5lJq+T5GOXzZblGFN/sgsC9mFgLedkQIeJC3cMv7lH0MRh9yf7BZWlB6AR9l+KRlamh",
+	"e5aldMmheDVXOivdhUGAmwsEZ23kJF6UFRLlNI+j5KLI7SJAMk4vzxIhrZ3gaA4CT3fQ60cuJBJEJ53Z",
+	"5I9nJ8dPvjh7Qtk+9kPI5iHk71b5eStqLYrcZv7o4d7e1dVVj+PPPVVc7Nlv9Z5tEb+B1LHM5KKaEERF",
+	"iTQlCu337IvWUt4atlCJpfJCU8ydciEE8G9b3KaWs2jJegBVAiGykg4QeRHI6JlBNdcvhEAxuyy97Kn8",
+	"JG0NW78T5nPbVQ2cY9BH4LtESWPh3cNwgr+xOWbEE2/Ka6MuKHuqNg8cJqzGg35/XTN+XHsn1l2Ld0Ul",
+	"8aw1/MM3CHww4wAf2noGQqtA6DnDLzD7189ct76BT11AxtpFfllgzL9YaCo0Lq4d9TLKnamv7yG9IlhG",
+	"5TKA9fGRlMJcqeINuQK9RdsUC22RZ1f25Lkd2Y17grbLec6z2m7Uk/tWFt728D6WPli2mZ/H2k0Iw2DW",
+	"7gTIOc7i43WIwAYAQsL5IgMtGHNLtyB729xuZO8GucNCh0O/39v3w4/Yvz96/ux9rP+rUNPatPQUm7Ql",
+	"jxGywn79xeorSOGSYBjYoihwgg/690eyRGSp7wqLwSkW29ABTvlHccDOfF8ZZkTiZYVJRsyBuQ1t8B8v",
+	"LCmkLqfdlSKnQeJI2hXncqf0e5cta1RMFTpWyAgXuF9GUiqTJUJbkANwIaFejn7aOIjbg0F5B27Esgnj",
+	"chlZEAdSRnN+sebsn9KuvEd2fIr51ULrJnrF7plRtJ63pk/46v7NX53R0r6W/JJnaKHcSNrlyDeQ9eX+",
+	"Htqy1hL2Rx9hUvHwo49WnJFghqY4SBR5j6AdEKt1BJq40IbyKyLGDWn3PjkE0spB76Mo05hRpVMIf0If",
+	"tssHTbN0iA2iyklpSUG9bZSsbGIeETIFqcvgHUjC7RGIe5GOgQHFJax7kULEku3dWsLg6Ui2yfKOE479",
+	"sc3STpgeCvKpj27CPEcFphQpiiZqPcPAZ1yksCywxlLscCW10ObScnVVWjSDVrQlodp8+LdRc2vBClSa",
+	"DBLfPz5oSHTf2FqWrmurqcr5usaQKuoNNeIP7DfgD3zzHg8/7tYztfauKrBk7tuodbDNqf+Mpw4PAT/Z",
+	"v/mT15LbnAyR0kdb8ImnqjjP0lQgOsLB4NHNX7xS6jmXSzs6/QvxMc+56KjgwQoN7efL8OSD+wGpMGBv",
+	"FKUPqAsrMc6+LKrjX4jlNctkyQjp5604YRVR4SbOSPEaNaaoitRlAle0QUyPtEHD1jwk2flyJCFNOPix",
+	"x57aZDZbDoZ05aMvHh+yGCQ7FBYyad1LxPWMikfSu5wiDDVEm0NFH2WQqqVtTegyaj3xifSsrYWAkFDK",
+	"N2w5k1mwYGTKDYSrzhAx6FhDSt9IVpPsuC5TABvz9w6dz8tnsY1kNVWOKiDjnCtNg6euV2aqYc4zdoGi",
+	"10jaDsr0shU+DlOmDd2OjVfqwm/HdkIYyHVMs6wwf3dtkqnjTpv0hYa3a7JSLnpdm2XN4u0a9WWbocHq",
+	"mX7CizwT2lQPQFQeGyzf0TAGOGCVAWwDc7ra/zNuGnoX1zf0btQd9P3SZeiu62X1XvYV5h/0A5CgwY13",
+	"dNS8QeXp2SuTQ1vv9UZHAoMj3HSlAzAC2lXVxGYkfbjc7/xyPyZw+0yDjTG4u+3tu+7uDm9ch29+01WO",
+	"4QXv4T7HSGvKW5hAKMYJeV48Mo+SiQgyz4W8yCzkRkoQi/RkbO2cceQgUCiTtxCupTVaLy7h6u1zwxGj",
+	"iJvHP8P5Wicu46r+2o9U/+DmL75Q5ilC5f8bPYNHtBWlqxbxrWxYLdCiraz1/k/nra0PK9HTtTPqUoZA",
+	"Q3CRKhbmrkyudoo9ZteqPPXiuY2NDrWPTIfQP5tO5hod/9dwPG9SaHGZ9Icj+is4ogHpYaxCYpm+O5H2",
+	"cG2r69ZO6IYTWab/wzTmSr+TVZBKeGjGMToH36WcOePxeIPAKlfpxeMiqyK7QOR/lzrksm5Sj3wZsTyT",
+	"lIjMMsz2i10zYzWBNFP4xjfkr1lXwANDBQ14+DPp5JIeO7Wt14aBi5MSQPPS/wUaJYZjOUg5GxrVdkGV",
+	"2NZIImI3hjwoKbw53EB4tk2rxUoGqA1Y5xmaCTqWH/nlsXmo8ZxsAWMfokgd2shHNQlCvazCOJIUSOVD",
+	"DH20Xxmp42Yb1GTlhWAuehsTivRiLgotcPJoCnNDAy+urjdTgeewazwEP4WtrlX5nRIOsDeVO/wDNw6r",
+	"KNmYGHD9k2uCo3UB0WilsKYL3WMvLNiAc7RYxk8nasoziXki53b8IgUIgkcRpRJZ0h5nemy/tgm/p5hn",
+	"1D4YDGzc07lNNbMSXpkK7i9YaO/QwzCOJA3/5Phz9ny/DwjsA6jFZ+oVPAFR0db+gWvJRoRgLu/YUlU8",
+	"pDEQxSEemS6jwzyJMZvlaEHj7ccak7BjS8d67IHbxlJcxUPGDcsF1844jt9Y3DN7DngOj5fUDsDnu1/G",
+	"LlIjHnoHwAAwaOsFZ8sCraxsFk5BnrN2bRJuCJgrqJmFvHVNdewoMkkg/noMib7hNCq4n8GLMS0fwTLa",
+	"XYJwk8htUcdl/dgRUE9gPhsjpu5YyFSPpRDpmAKb4qGdDAy3wgZgAeBDF14IgIo2TgSGB2Xw4W/aT8kL",
+	"dHHAL9gRzAW/hg4PbQ4Ucwg+NBY7gohxpqmoqCjj7aD7q+mSwqkoHh6BxWL7VRnQg4vcaZJ0iKk/cRfF",
+	"zrJOkJn/ewElsXaUjvCK/kylyy0EIxv0RndZJg0N0JZjaT27j3cjfSZawwF1QLDALR/wygawbM/uo56X",
+	"yb+hCDuqh8AuM3s/AU8peAJ3kRZzs5ihILWdZOYX08tTVZRhUyzE2xXJcP/nUdzCAmw2ewrae6aSNfV6",
+	"XnIzdQfdfRyxuCZqYInO6hSjTeEC/4NJpf0tpNJjJSd5RrDaB/tbjOklX+aKp6+UesaLC0HfPdhmAfRi",
+	"TlHzz0Wa8VfLOX08GGzzsY2mAkH2iTTgjf43Knc/oRsoLMAhbZ2IiHEnxzqaDuTxb5N38zuR8A0IWr25",
+	"vNhKI76F1QphX3OFobAxdqYvL2I7s5df/I5lM34hNmm3L3NlXn7xu/ep3+IY9uwqNJi5zzPJyXa4TUAR",
+	"zvKDRvuLnywgnECVjRhR0Xu3MDkqfw9H6qwEGvSSqy/IMOPFG4QTsQDymHZKM7cZMpMspXTJc8xrolD2",
+	"QugsXfCczbkUOcNMW1Kx8Fj4TAVOcZYYQTuSBBbp2vfI9wHyG7RuPWc3He+zr36G460vL357fasIwQ8H",
+	"+ld6oM+++nkOdJnduJ2FaqOh+GSlhAPMiRIIIPyoBIUOakfYCaN2SpGKvFRoCWmOTnN5ypnLamTcsLh8",
+	"HpcKJyqETj2FzOw6TFaPlZlSFn2jXg2Cy6UrmWBz1Ank30SYImRhCaFBbhaIFmWZwmGlwPRI2hwl0DWJ",
+	"NbkcTMo2EtIjoueIAEuJ/5ViXCIdSVJaVUGMjHFyLfRY6IIgSCCsxFXW2LD9ICTZSB70H61XRINFeUe+",
+	"dUvFstzN1rDfe/QgalmiwRFkMNKvu/3+waAaqfqHfq8/eBDB/x48/AY99DZNFkvtlN/dX/1u//79b95+",
+	"s7V6uZJht51+eXeeh3AA1MU6D7w1TM49vG9EUcwW975IRdFrfVAFP6iC7z1SIcxhxihjV9YnDDkMeM+W",
+	"V92Gq62Cr3wX7pdTUFx14PK0CCTOK2DDGLzQSgCyPrYBYvNKfxDhJq532lhgESvrUh1ca9YEi7qUBLFy",
+	"kUmbFgz7wgvharMRNqA3GwEJDllMOacJQAMgxjj8WFakd+mt1iYKbZclIdonZy/2Tp4cs/2H/cGDkfzx",
+	"vz7s7e/3BuRPYWmRTYxNHqYMTO0CC62PwpUkCjCbEYaOhPC0XM1yyVi7BNCJ7XuAGHsGb6BhdUqFMlcu",
+	"s1O/+eJXHOFxWiHRdZEeuLGZBpPhB0H9l2ZkAWE5YZ0olwRB4gD8ynOBO46o9qxNFWlvnk7eQ7THK490",
+	"TN0Eaok1bT1+aiHjUWmRtfIfQyd3W2ufs1iX+nPksxGjwDaISc7IFJz+HxF6IbZTVsj0LLOsqnuP6UQR",
+	"dMK3C6qu5sDsiCPhN9pwk2mTJZHFAoV2tVpgRQB8QgZKyJlEFzPK2+vqIURemcHGvVMV55wLXsr9LjXM",
+	"1wVgbclnIrJ52pSc7VxWOT+/p9mflBQRrCMHPm/tHpUCGlpNzBUvKO6mxqsjh4NgEJLs7POjLlRwtGoU",
+	"2FJcsSiLvu/d9x4coXTSS1NsjNA5RSJ5+fjpz8ViLdW/sy3THqIPPPUX56mvKuUnwgKU75qVsou0iJ/c",
+	"gZj4XF2iSTG4G+qxJcwoFiPgzaWwDLgQ5AiNiQXSxLXDIrIslJypnq9iIYxM1plDjx1h08jD3DgIONva",
+	"JzD1FcJFYuvs5qXLGkIxvCVBSUHoP4EVBGEXWK7khShWZ4bJHo/KUh3wYJJh9Yu2q1aBzVNR27IQYKHA",
+	"nlPyyEKYRSHLhTSKYnbEVQciiujHIPwQ4b2kuiIOre1VlmlblodA+SxytyuL56bJJcO8xULJLCnHACEv",
+	"sIL2OiO4Zv+rjpkWmHwEdyCxePemy1r2GbxYnYMa6DrC7VImZtdNHnIlQrh2ej+s4Eiicy7YqEXf+oUb",
+	"tYZML5Kpq/6BN4MlMBihI6+RxE3AmqGUAHZPhxeTx0MLz0Y55U6zrA2reTsx+xeKXnBHqjVs2VVqVUIV",
+	"yG1At3mlzKBIXY07FCyqpWMhxGiHMAVat1/IhrQ2RoFGJdIPdqEPdqGfITSXTl/Jot49OnfDJV8ysvcW",
+	"JR/wUnfLSarDYJTqlEGMMy6zidDG1odD8cei3UYjienwoB1U1QJ8hLoBs6rBIWksU4ElnlzBLLocRpKi",
+	"P6c21d/qAXSLY+lZfK3HPgN+J3SlJlZZaHskV29nC6sYVIwqf1GuTpQ1ddm4OkwP9T2wdhVHIPavWzw+",
+	"24pVpWyo5UjaHcDP8Ze4szGx9Kzc8V+lBciPb10e3avK4n7QVn4FGfUBqTclE9yNihK9sx5y1CzUDkPY",
+	"D4BY1VBIKCOtYs61Rvw/lGpYWRMgkIlj15/TUcqqfKEseeg0HA5VxniulRNIdcntQwkeKqKQ+OnFfEf8",
+	"omA+fN1bRYBJIWay6x2a/ZZbcVoUFuXSyforv8iSsRHLmS20caWmgzUizYnQ9mFPROpN2DbrnQTzkuFR",
+	"NDvhmHRtK35OR7ailVvqCPy4CkVJVYxkmuGtnjKeYMywLe92WJaeA70NqQ++It2PXsVd/5qUlAXWoa7w",
+	"VatmEtekCdNCsthSf3ae5ZkB2P8KS6dw9wamzuo83SH8ajOS8Lm2+RkNrLzUTjxL5+EeuQYOmRQZXm4O",
+	"/TG8pcjzDosatG6P5EiW6qrx3aG+NkWscfuNxZmmivOkvjZizmQX8t++joNHHZ703KlpRS1LB/5FnuMc",
+	"iT5bw1aiikIkpjtVhRbdc26MKJbdh6HKhCN2fADqdSWJmBsuE8GSIkOMRzYTZgftyLPZXyiI2/d/4638",
+	"QVP6oCn9PGLHu0sbG5SjClbrewjwJP0o7KVMKW6IB0MsHxM3sWKQlb+qjPZXKduHQ9wk3lcW/oOE/8sf",
+	"ta+aC6A3SvsbUhW2jMrcRtIPap9tPGfsJCjvDs1WC/EHk7E2AaxoQcVFQXANO+oc+urmoL0vvTtYCpAc",
+	"9cIibk1BlGzXBmWTO32FbNcxWlPLUA8rN4IAAssb+02KIybVSLoYvk41xCWzpbDiar3eocfnHMn9fv/H",
+	"HyZAhXtSzdCVCU385jHDX9r4E/vp7/+B2Z877j3EIAHpRxBO+Uh+/5vH37Of/tf/Ry3lsZRxeuEij43K",
+	"RQGPx/PEYFUdpbH6I0Wm/viPgz77jUurZa/P2JOXR+zs6+4nBx+z59g6+6Tf7z8OPWHVfTxczW6lYWH5",
+	"tQKNOS4JGc0mPEkKkWZkbcLHLhvWYTQclSVhcWmlYoXy7n3nAALdg1wrR43pxtVEYy+lV4rH+LzjkeQG",
+	"iJe8zsDsWT3/uNK4KmzGUOBZQ5TjK1DGDmtpy1Yh0LY610qyM905PXYkg7CsptTrCnt2EVU0hMzQB0JT",
+	"ufAl5XmifkmZwTRjMP2RNhs2Fo0kvMQd1ifui0tvxcG7qkS8oHripuBSUyawi0gLoeEfWUcR834iaNEX",
+	"dCannM23tCqSPbdjqczY/YY1k+wMy9R09BlJtrpUZSNhcnfZRC0q2b4LCHOTDLLAwcOFlbIqmx0Eizky",
+	"ClL5oc/KmcNdHQcHBiufcxNvyLkN2fy/FaUuADdrDVuD/uDjbv9+tz94td8f9uH//TXcNCFXxPDnN5kk",
+	"RU6aTC5A14t82u7x8VfdGaKP1sKiD/qPtg+KDhfzF9LYwiHQDqfbiFyOSzK1MMARP6hzH9S5nyWOEO2s",
+	"zdFlrH1y/NXe8fFXnS1FTS+23Zz+s7bSGX23Z1n4e8qaDQJJ8KQT1gzWCKrm17kiU9yQaOAye0ZSqqvO",
+	"kPGZsjedC3nwN7yhHBm8QPBbX87Zzm0ksdrVFpcbCZ7wsrsdbbFqxJ8tTYwV8yI+RAmSGEsABsaveGa8",
+	"dw3jRFBAs+KbFiESDU1snMkxliKJQUqTaOkuQz3KSWhnq1d5KgqGBb+/doEolfYBWoRuYX4hxlO1KKgc",
+	"XCjpZdq2Y8v4cON2AiRziS/4WnbsoH/gCvtghE8hMLSbasi44kmboght9crdr2FPNK2b0V3XwyPsAs26",
+	"epvMFEW1nj49Zvfv3390iHFIuLn8XAtp1qGCcrM79uh7Rxx0W7EJeLDc+g/mil9F+GR1V+CockuWd2qr",
+	"uOkKudt00iMdFOhck7UaR6TIhcbDch0mVPh/5XKJXQXHlesFji6Wsh5JX9NryxsTlB6tLK9kz06en4Fy",
+	"Kuj6MABm44aX6saE1C+Ue8GNH91RByPpY97J4bJepyn54bskcoZc9Z20Fct6hy2ZmYIjE15RXPZLxaU5",
+	"0/NBQ8bmJ7skbDYtyofUzQ+aygdNZZvr5csFB/lnuYHP3mkO5/aVmO/gitmtADTVi69Xf0Yc6qD2swUR",
+	"xMwZtGq7FzE6/ltazqzJ6zWS4c3VpBVRjlKzZgRXVyeikD0zdUWobOQMjK+cCbIVHGADV3FX00gGdxNl",
+	"zNBrmbZti9RmiqmCgiwMIA0OWVnpeSRL81/j3eZMljAxHBCY9lyBZb03WvT79xOJ/xFBcWerltlFrixr",
+	"jx1ZiMT9qA/lMl2eFuEg7nZ3foZ09gvfn9Rn02W664VZbyVbaWUNakJDk/2DAbT5zaYr/Z2uaFz7X/ye",
+	"tqPYfFnXTpY7oetO2Id7+8O9/fPd2yv3VXDvZIUzn72Xu9wW/N3Olljxce9uWcyp/ksIex0mZWFEieQz",
+	"sS6i5Lkd63vkKtTFplgQu2AfaqXcfaZJnpf1p2u0Embp23e2M7XfYYhHaPdALzfQKkss5Lun6v0ee6m0",
+	"oYpmBFEN/8aXbW365UiWmB4lOEH9fLimyZx9HfzSHvT3Af9ZYEWnwv+A8bbLKPBTJzbss0xWrQGYjKRF",
+	"MIGxlUN3VcjN6rm9p13mOvGpkXQDtXAf2L3LDgWP8gALYL6aFkKTrJuLiWGYvjoZySBMI2aGvxFBHZl7",
+	"2sOIh3VXHVUxPVVXOIU8RxASiBagm91i0xeCLWT27YLWHgRMZ2mHGPANvufnrjzYu3md70y4tAbpUrJc",
+	"yMy0hq3Zxd4z7KZKuF/Qe8BSX3/F5lNl1EygrDPJLoVLkcwkSxc0BiyMhWgOWAwLSKsV1XrtLi5bUcsD",
+	"PUDJ8r3r7UVIWtJfSF60+9nA1U8c5I7zc9Xo/dDTNdY9Ir818v+79I2vHx8xG0u1qng3fGp31cbB5b/3",
+	"HWzz/2gA1R8k3l8hyBgeHs+DozJiLBQKlRQ7XPfNAq2l6V9CrrUeZgoIoyoZYZmWeH1l/8YLB92SECEW",
+	"sGM+e1/e0iOm5yKBeIeA/wVMcQufaQAX3lDkeLB/8PDgk/sfHzz8BUsdr2e2pYj/wXH6y/OLF9LtxnuW",
+	"/y3zsLka2zCNlbwJm+MXMZ8g6JLKWZvaRWmUyjGlIhdGpGtTo1/SQN6n/UwUenPWAw36g6J751QNi25X",
+	"d/s8oVtrqi5Jlkq2WGUIswwjiPhd5HkF24C1EaMggAsAHasDVaJULmyMVJmG3LaIehx+YUfFhZKDLGVT",
+	"rqcMgGw2aFgvXcn/X07DgtmP7bV1lItrdlrmXDYmYm6Xc6lyEeBiiKK1A3QxLsovFJ9rd2QNP3BJzK0P",
+	"gv8HwX/Xi3wuJDodiYZ2Z3uVC3rvOzycb/fsVbudm7kmtVu+mHAZoKUB22MZZrLAP32VwKwgfAGyKFn4",
+	"rx41ZOdUGt1s2JBDeUGbXBMbfEyjX8cHGwR/4km3lfyf4dfvV7L+H4OF/J9AtLbE51Hm7upILiSgXux8",
+	"Io9zwQttkTYwGgGzwCqYGqKEP2kMVX6NXX84Th+O089/nIj23v00WX31vWX3o/na2tnKsrilu4jSGX3d",
+	"VEpy1IYbEWElXKqZjVekFMwow3MKmWDtWItvIfCnWlr8Jb8Q2ubSUvpCnmnDEiWhJXRmaSHYCLUiPWo5",
+	"uNRg2mS7zjRLVYIRKOD6clFLMGutihg/mgiRunLBPoX5XFxkiMYPOGronsL3opGMwas2dg1kmvH8CnIk",
+	"tDCsjXlnTMzmZomo2Rb604aCaVUwDUOJRhLjlSFdcqYKEbs0CwJ8g0e20Di7EoVwJWRZomYzdLz1RvIp",
+	"rg4MrToiLXy1AGzCe+WUTMTQNcsLMZJyMTvHcC+7fLQnVnIpk1K17RfjoDnNC/a0GEmbUM2l7cslzviB",
+	"ogmwIFrC8Dl8LdMMbC1GSNd10B01kvAFJdoMMeMdtwABV1HMsrFfmNneQ/JEM6x93uMp5MXG9IPNfCUK",
+	"92mtPZfSHq3P1rJvhr/GHcRzaswq8h/4n8JBuNi/skZ1WTwahg7HZWwhu/3LYTKTkkLDSbGx79ug7bZL",
+	"XNueez8e1hKCMHc/kx5SK0xxhhZxrHhifX3rtSaoU/zuCdLYzko6nPpjpOLWqo0ZfmQ6+5NYZ0FGqPeK",
+	"+dg6gVvD/X4/Ko3JULLqFzQj0xI9Fc1prBh2xomb0lH9YEu7e48SXVjI+NWkBmRQgSilJ3eTXmPf3vuO",
+	"/jHO0rfvKRvT3dD2Zu7iRInzUoQDuZbsKOKoxC/1mZSVW9zGZmCOCjuSLEtLNAnqqhL1O5IETlD2sMZ7",
+	"RUdhlU80ofrDm/c0dN0Ohu481DhDvFLtQyemdDy7qErxvomNkrxP3cuk+figFTCRR/3+w/1HjwYPDh4e",
+	"9B892v/FGQplHq+vigDvfJD5fx3eKQdLSOj2hGwPYf7vj/Usts7cK93aq6VcVWEDy0AMawc1U1xZHF89",
+	"hRKssbCWki6vZC5QcqJQq1qJrHue91Rqy9TxUYaMs0F/n9BCdcVyFgidiHuzcBifJOWSEe6S51nKzhfG",
+	"wffQyBIuLUKojWtTBYHigERvA58iSDPwQWQaa9LkEbrqJiBX4ku6Q5l/ANBMTo7IOVGsMSKs21At4ziE",
+	"CkMjmXLDoRHy+Zlpoa4kJJgvAQaKxp/J+cKw9sH1dYd6CYtmjeTpIgceL5bKwkwTp6DgtWGw6ISNitGG",
+	"uF+oZAlCWnL7ZBksQvHYaDhYEvszwpzCxAG2SOQgg6JJRmHR3nYhiKkJTyHsQrFMGhWCQhGxmCvlIsxS",
+	"BfNhegpbxkeygnxy6O7rLK2E6gUR+rgKf/EXf8ECt89Ingm4H4JH3d+LJRbtmEH8YCFMkQnYjYnosd+L",
+	"JbWOR86hGYwkAcaihqJJ4REzHD4UfiMEWsPg6jRscMAwCb+SZXMPAw/BbIz+MypgYSG8h/Q9+8uzF1/A",
+	"gkfB4gOvmPOiLKYkE+Uh9lhbKwh0NILpOU+EhYEFsrc6nV3RGTqcOofU0Ugen31V6QhFalbexh6oHGpf",
+	"nasUSkwYAXa0LjvjM8HeiGVEJdODSUW2bJSdMpzLOXquifY++siVIRpJ5g/URx9RjQyzKGQ5r0F/v+QU",
+	"2A+OAm96F7sWgzrN6LXK9p6Kec6X2G2xEDGE5Fn4XlzRMg2qOh0XZWvCOQ0Bz6jyIix4LoIqWUEeFTEA",
+	"iL3PIeyR5m27RqgIGDDBSblDZUoaQUB4KmCCqy9ZgTMh9C9VsAthENAWWmnTvE+FKZbdo4kRRdxhGZhi",
+	"WKqIMcA8Mj2F8UDLOIujsjOgZcucgKVABw+As/jPIfwWpcM3YumPFpBOOzbi2uwl+jLujOTvhBRY0pYl",
+	"eSak0aS545tw4H1OHtwx+BFre5FwJK2ifLqQx9Cej9zlb4RGrzAre8OVSUWSW9w4TZQ7kiHpaubuzUOy",
+	"BPnOLAwYhRCjBSVoWY8kXY/nImVTUYioRoFiMhEJELkq3Ey9NcMC51HFIC6XQaKfZuJ6rgpcjx4jQOdj",
+	"kv+64OEbsnIQvvrkSFKwJhV+1BbbzRmpVo5rTHwdtISyYygKGQcIUzFru4Uhzhu7um24IQa1/c6hrdoc",
+	"1wXT2EKvBd3iNXIubIgXax9A6LZTRvDAZpq9fvW0+wnAQed0FSAr6RJ7wuJlmWbZhYQD2SHQjYP9T/oj",
+	"2bZTB6zCc5izcoHnLB614kP27CmQ7PHps6csz6RgQqZQGvpZJhHqT2l7QEcymfKCJ0YU0Ff8F7GrD03b",
+	"A0sBD/SbbD4HojnPuXyDberwB+vBo0Ov0GCH/Vo7H21Yjx2rfDGT2ieooDgDJIFTHsLyfM8SfIl970mV",
+	"fV/anwp1xb53tx3+MZLfd7vdyv+HVmIAAovZ92wpNPuexa6FGP/A72NGb3qEBPeyfcAyH+G35iF+jhd0",
+	"+TH+Wf2UbJ/0dhXH0X/lkBsrP0fsp//1/8n6tRbc7VB+rGQle9bKFRt+GEm/CKgxQv9lL6UwUZupy5hc",
+	"+cD9wCY8wVqHlMXK+qxNr5Bout+BhoDVksRPo5mLAnYSSl1Zycg5h63LqlBXuspvgMmX24bn1e5CKIET",
+	"s8SD6G4MwU21kep2dFzEKfxe7yFYrzb9W9MlW3ZT6yFYMajkpa6s5JFRTVxix3bO0BL+ilcRVUPFcxD2",
+	"m5X829c1xFOAIhO9iN9/YeX7hRYs7gEHx9pqM56zuUJxhEvm+BoyYYlcKt7vPRDd+3GHQEkZ8LWFRl1M",
+	"C+BuRhX6kMVf8C+AoZ7ISVwWbsneiNCrj7oc2tRZuSIFIdtz9HyAUGdv3kTkOV27/ooFJrtkRpHxVV3d",
+	"0wzOtOesSFn0uXQ1lmH/fCJG6paQWA1ns4xAM/0a0u8RiH0M19HqJaW4Q4oSyIKW5VqQKMfTbOQ1MDto",
+	"w0Y/4EsH/Ucfk2wYVjqjigm4CaJg8R58WU/+pr9ocPQoJvJofj/ueJrBNXYFPjVJzbSObUB1BTNvqXbA",
+	"wfOMldgWGNKZR+GATx70+/Sbjphvwmm0rtAmiDN4p1FWEqesdGhq0O9DajpDDQ4Pss9N77Iz0sFQgbN+",
+	"BmG1ad8iSjlASEwq2SVuQqkTh6R9MJbzJUqG54qM965e2fkyrEx3T2OjqQAloQhSu6CJ8wKBDNBdh4Y7",
+	"WxmQcb/kvV4vdvtGvhsKfxuOZBzHI/kXVpahjgOu63KGRNHdZ217ta5eoZ2RBPKOnBZJCnb1PnCsP/I8",
+	"IXIcZiTdVkY2ySh6th/1ew8iyInvD6Jo4xv9R580vzGI9nt9eGPQf9D8xv1oQG8c7O/jG0Q97vcIP37Q",
+	"jzC7frDmhf379+mF+9HALuiaaMfTxZ1AmFbNPUAZSGleDMQrw0LZWssAptSu8bT44Oq7yB3YPJqAtMob",
+	"et24ypff+9g8Ah+amXgJU1jCxa0bZYj1ujNM3IYheskdRqfg8qkhjawbkJP+t160F+6Dt+8H9Lb/SYkd",
+	"FezpsBVyl1bk6LCWaeinYzECtcH42hANowlzowTFGKyCYgyQbwwOHjaAbdDnawA27q+2tX//PsJreOFt",
+	"7ZBqgL/AvTy877P9hpb7A8ve1g6z1uR+0GDTtPs07/7+tg0OggYb5g5cE/7Tf7htgwdBgwerDX6y/wga",
+	"/GQw2LbBT4IGV+FP9j8+gDXc//j+w12gyE4XQfR11HKKfIXgWx8uzbu7NGt+/jpHRBXA2XBQVsJE5Uw+",
+	"E/LCTEMfXVhN/OcLmgcr12Ysa7T5WmiooPqvzZxog+JphbbCmjlHcsW4HVH4kP3Iyoi+CLzl3DaYI8gK",
+	"bjKiri50jFZVVxU5084AYntza2ejU0rUAey0ZlMDy+I2icTnSuWCSzxl2+Uu2zoCNnkZTY8ANvkhb/lD",
+	"+sJ79vQCKgbj/iBPMhMc5tDVu5Bb5iU2eHXdNfNOnt1XVgkFERSh7Sqm+tjmaZXmcxvpqa5kAI06kmQM",
+	"ZxfeD2AN1UEQJtNCWkgRcuRoq4SCnxW8umnGGRy+KLDJd0o3FNjEWdUkHtj5V70APebmRopz5ItoaPpn",
+	"VrI63wuh4I0kx0oVSoumNbnaZMCHqiXgIgIryEgqcplSxXrnyrHlE5Wt8CuqHiDHStcAGx0HrpK7VxB3",
+	"VQPfFwD37ZW/9zGiO1P5tgg32kkF/JVoex+E3l9Y6LVOZGshXGVZH0TgDyLwBxH4gwj8C4nA5JJ4j5Lw",
+	"d1sHVL8jdA9MxyXVcBdENMQpOUeZLa/uPfnW/YuhWz7cnJ5Vcm8KkYgMC85UGd+6AOpb+AdOF/J9l0iF",
+	"Ya3n6R+ikH8FsJnuTBLx3uoM7h6CTGU+3ne2In0TxE76WpU6qp42G7UF0Ri2hmUhINp0Nl9gELBMROQu",
+	"d+EjRbSP7F2FzifkrgzD2ah4Yhof2ow6F4dMgb2UmoHpFA2ZZDR4F558kYHsg15bOwiHf4YzDYdRBk/7",
+	"yk8QvWdLO7n8Ldx5n1nmY/pOw6SPkXwsiuyyVOPdHB1n+vI4CqMfF3mlABiG0SUZsLgggI6SSGAXYpth",
+	"MqZH8XAk93tBL1eVIa6t5DVksZtUfDiSg7CJRC3ylFUCu2uv36/36Atp+ny42hcH4Rc2ahIWYwac3qhi",
+	"6YK6OYZ6+ugOLCNWa+tBLwRJa85B9CV5K+XPbDCApQaqWhvE99G4wt6ieg1W/LzSpYvzaaqpWgicB5IO",
+	"pAti7BAGkqxUbnXS5jrKzuySwHvYAH08FYWAK3RNhVY2zTSubq1QK7aAbUM2aIVCLNQOBgs57Qy7rurJ",
+	"9zAWl6VFNjEdm+Fq9xV30i15ZmxUb7UYrl00bIPWi7JX4dPDkfw4JJdKlbghi4PkSiCHh+G7QfE51vZa",
+	"DpyUiKJ7ff05GmxniEOwpwo4fiWB22do49FmWZCyC4qiK4lk2W3sOcILNE+RXUKPJEWtHmHc7JCFAsJk",
+	"mhW/deGhZVFgjFfFiJann5+cstMDYK95LijRN/5sIVOITYQxvDjXorjE1mLN2pc8t/i7ONnXx6+fs0Sl",
+	"gpRtswhytSu5akNWLgH76T/+A5uAohdVMll/+o//MJLzQkDwkOSAb+sZI3yRcAkhWjbKlKpc4HAOWZwK",
+	"uFhjOoElFeEvyC2fFmoWlxvZ6bHqolWCfJcj6VbIBbyilGw33Bo6C3XlJMoydIyPpJ7DtainQhh2hbwO",
+	"/qblhi1b5BxjBAuMccY2P43YbyPWjdi/i5jh5yOJkbO+GiK3l1SHzQsxya7tElB2sdKmUPOpsFWl4eYJ",
+	"7ygO15+ihaLY9gpkMy4J7TeDoso2XstdUjBrwAxjmVlZsutuSGnT/GH3cvBbUTykJXQ0NpKfP3vILge9",
+	"B719Fr84ff3H0/5+zGZCa0QTyCR7cvqQYeIEXkpYO8XXYWLt52efRyP54rNT+unFZ3+FP9NUhzSxiAhx",
+	"ITMT2V8YkWPEVEnAI2mymYg8YilIUnMEIaC2Haew9t/I3u3iAt5hQtKNN5KcJbwoMsgHpswIzGF4/uzZ",
+	"SzYpqMKKAmHi81evXkKBF+nzdcy0EIKOCuXnL2QiCsMzaZbsfJFeCMOWwmYmBAWWGcZ8QRY5VYLEzbGx",
+	"i2s0kFOfN/szKCKez1S1kToeqeU2juBgUZZzwUre0ystq+oc7nwUkN9J5XHrUI8AWG9SASm7mbQ3f7ch",
+	"xVN/0K5+ee3qrFoZn9KRF/K9pneSbuWjnN4115PaCcRPz7Gc+wPaB+GEM6zaxS4U5ul4qVGXVnFIx0D0",
+	"j1qhLIMqVl2NKoQ0VgoCpP+wNlZWemDapXIHsdATmxoVlETwomCJuGGDeK151gsXAaKNCZPNq1A2cN+v",
+	"yUdlm9NRsSRZRULP9IpeecXL5T60qTSkYMFd4pBDvHvQWYp67MRgvHsqtA3Pb9QktI8xH8mgV8TRKeW/",
+	"upIOsfyOFuyGO12OwFgyo0U+QQ0BMrXQpuBmGqh9C3ljZqq9BIPCYejgtQmr0NcU2nbyhgNIsaRx6HMC",
+	"WJZW0lArpZuwlgPYwkHwApXIFpv2xcSMx9qZch02atUWNzXSCkaynN16J61dwLtw1O5wpd4yKrMSJ7k2",
+	"QvPR8L6L0NwcTNkQs3efwhQHjx7tEmJnF/EXAjmtXO+N16/Xnj32Y1EalVyi6YcKYR+cLu/ftpumnhqN",
+	"CiKQvnWlw8xUzHYRRjZ4XmxHe9953/vb923YnZR5a8TuI8aTQmkNE6UD6AoY0a2PZt+RXLH7HrIbLj/f",
+	"lRUErD61DQYOIwicMp9tjf5EbG2tCrXKZ6AAdWXqKxez/XUN8I0f0d2EybxPN1J1bT6oPb92xrNySnmN",
+	"Wt+bAlQCz9MBLrHxttOENnOfz5YojkInomA4r29515pnwyAU9G04LcKj3aN6g4GII+kHivjOOsLMd3t2",
+	"YcC2bko5/tIMw/gizbDifJbjsL62L9micQ3wf2U5NetHhvvAmZ89FKEAoxub8dS7iHAkrA15u26Enahi",
+	"nAaILyHBjjZ2i4bTjAIIULTAOiHoXKCZLrDCjmTbW129LrTiVyEjd8cqB36loVGLKwrqNYJFsiawwyjQ",
+	"6mAxYIq4kCINoSDhp7FRbjIdsnHCv4PltL3n2aXwqz2SuHDeVYKXwKOhX0baObc1BG/acBO4vTxznd2F",
+	"stDA/d+B7b9+ffLYMfxb6hbvUB0BzxaYVggdPTQZXBVKXtSu/N72Bea+9mftFyoyV+75miuuPJIlgX/Q",
+	"JD5oEu/9QndHg/GS8rYHqb7pzraGqe6MG1FkPH+fESGJKlJCebZuddsnorMkKl1bPvjMfvHcD/J9coJa",
+	"ZxtLCrsBfcCHfS9FhVdIZadqwu+pgHAiCms7L4SrBOzGB6SvDeDJa2URaqz3D23x9tMEXeQxOjNdEou4",
+	"nnOZinQc+AhjilWMExBx+YUYE9pNbDFAYqNyUVD13faP/8h4VJp/C5EYLi8WOS+ikVywTxnf++nv/8t9",
+	"FKpqI1RFxflIwBzzQsx5YQOPRpJLSpLxEyUMWxC2JIvdy+MJOt4djKGdtf3ZAhBpI+YQJpJngCJlY1El",
+	"z9klwI+Qj3j2zCvSWTGSfp66c8gCV0SEPmBswnm8EazeByXMOQHp2kCGT+0D9uMP7M//d2aHsIfdd3xI",
+	"VSFybkC8dNQ3ksGegEfhHBMkyg7uWbQgFI9pGvc043ttWPEff/iqM5Ltvzz+3XPAMmE//tcHvf3ex4fs",
+	"yaLgwHP2jk9eHR2zL18fPWdH83mPPentA3qPrfzsS8+NpAUmHzKO7JJliLdDMXIA+PVoQ82uOlv7NdRH",
+	"rqWIp/Dgixf3u2evXhz/vgvAL/i8QvyY3t50WFrDB/hDVgjtbeUPu/2Pu/f7rxDKwNrKIZWlNWz5wzue",
+	"lUuSK/jw2YtXXTK07yNqwQJmIwrQrmkO7NR9zM7oR12r6xy1kOQI6Hx7+3ptk34hQ/sKraw1+9gr3a3g",
+	"7QobezEgbhZJ9r4D2viQKvFB1n7fMgfx3CBYkQW84ZZljdfS851L2o2m7RvZfoOBAlnxr98yvSWXKpnT",
+	"B+v0rwF4/V3O1m4WaSr8t3NFsxOtF0IzzgouU5AkoRnW9pjS+4NP2HlmdKf09kBygCSYau2szCIphPGm",
+	"Y4wWcZmIMl8eeqg4UTj8cHiOIqjFoh5JrMaKgaGYr5CrC80ys17KewVD/UVFuwBrF80TIVrUN57DVB5H",
+	"LVq4mptz+7AEnPUvJCth3zfk0CIBBQU+LGlAqK1E4f1DZdYPwsrOvBTZFONEXQEPtVxvS/GE3vZ5m1Te",
+	"fGtWeSou1RurC2NLh9b/UqKP9vc7pUIuxXWJ0U6FbEYygFJ1cV8FtptSm9ap31iIFYe7huu9P9dLhZcc",
+	"rK4WLUv6QeL4NYj0sBXvfkwKIVP9nkpF0RugD9fwsxHs1tm6wuqMQTYf2hlGErJ3PP3HrG3rrrFY52oO",
+	"iL0IwnPOtQhx0meCk7PchgecPcaWyozC2H0Rl6lQ5XDJTS5TdVV2OOhDkUe4WwuVO2hgnRnGDfvxHwfs",
+	"7DFrX/ECyjqSze3Hf7yPDymYt4PRNEpCkOnZVFxNeWEgdaowrH1y9oI9/ORhvzuw0/laaHOBud0Y07rf",
+	"Heiy8Yjtd+8DYvagO9ARO+0e6IgddPcpOmm/fw2IopB10EEbm4CF5JRyWi6srmaBasr7QTQLqYxPVTz0",
+	"/wpBMsAGauMKRjL2HQzZhOdaxGCKvcxUTmZXZ1DVOJmwsic0CHHPlyrHWGNMzJmIK4f7bK7UyuaYqShs",
+	"wKzfdAAOpv3A2Ge5yHObdERdZrpchB47Ikxlto9wyuWsRhII+5AB7IZMqKqiK5wpQ4rAoAKsotmWvEDQ",
+	"cOPWAu3EsIl4rJi90KNA1EU0kURENjvzXCH+zZIizUfyy2OGF3m6KISmtH+eJIVIM2OR7AsB1m8Dl4pM",
+	"2dmLl7Zuwzrv/++EwdGsuUfeP9JRUzfOUPo++/Cz3RqNCNfppf+sAQ7pCaKsAP8II+4jlklMB7hci2cF",
+	"hHEHiLzPuGnoXVzf0LtRd9D35+qKzbhc1s9kVIpBmA9YZaARFUAyAZNeN0r3e3OdzUFYZnNQqbI5+JmL",
+	"4tF5WherLYoMFgWOrptR5KHkZVqyxg/e1fdQRL7IJsZJHLYynDvQlM5IyZMoZtQuc9ic6s0biFVE63dl",
+	"wMHrYW+eK9PTlxfvSfzCXiop2NRvXAOHKq+FiFEokM2FscuDUsowlB1ssSeKeLbBe0IaFA2kvdtIJhrJ",
+	"QBSidS6j5mxrKHrQqRAYUZ4LF7qIfmKs/pbD3X3aIIxIZWjUmy6/l7kyZ1/97sMd+OEO/HAHBndgNuMX",
+	"Yk9fXvz2epbfIi8YWcOHa+zui0iHrJdyfJF3R4y42B3fStC3SBYFWA2BK54LXojiaGGmreEfqKAAGvTX",
+	"5Y3Qr65ypVXUAmTeoVX5wGhFVjQbiuIqX/I0LYTWbE/NheTzrLfksxyzVifCJFOHE9QWvYsei6fGzPVw",
+	"b8/Cl+X8vGct9bGNFFkUeWvY2kOTv12r+rhPgnJeC6kp0ruMFipTW9ulHUF3euVRha8aAG6fUpHXsC3H",
+	"Iyh1L8DwAQFAB03a7Vxt9ETC6gs2L0SaJQ4n2RkYK4ilYXvl602NfunD0GEsYQZAMEl8oenjMtW6WuI8",
+	"8hmK9SLfZiocWMxEiLTSi03DWenmq8Z046jMvy7LiNr0AckmqkhE0Pq3SUPDR3j7ZgnPLZCGDkKzbPVG",
+	"jhm+Ks+STITLaj9oavXlCRnkwtfpQcPbLzHG1S+YqqZ4ilwkplAyS8oA2crm4tcNzT4Dp53QvnQy/nMm",
+	"TJElrv3gbPbq8L1ELd+8/T8GAA==",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,
