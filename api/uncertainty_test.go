@@ -315,6 +315,27 @@ func TestResultConformity(t *testing.T) {
 			if conf.Risk == "" {
 				t.Errorf("no risk stated")
 			}
+			// FHIR: the conformity as an interpretation (v3
+			// ObservationInterpretation: N within, IND too close to the
+			// limit to state, HX above the upper threshold).
+			r := e.do(t, call{method: http.MethodGet, path: "/v1/runs/" + run.ID.String() + "/results", token: e.admin,
+				header: map[string]string{"Accept": "application/fhir+json"}})
+			bundle, err := fhir.UnmarshalBundle(r.body)
+			if err != nil || len(bundle.Entry) != 1 {
+				t.Fatalf("FHIR bundle: %v", err)
+			}
+			o, err := fhir.UnmarshalObservation(bundle.Entry[0].Resource)
+			if err != nil {
+				t.Fatal(err)
+			}
+			wantCode := map[string]string{"pass": "N", "conditional pass": "IND", "conditional fail": "IND", "fail": "HX"}[want]
+			var codes []string
+			for _, in := range o.Interpretation {
+				codes = append(codes, *in.Coding[0].Code)
+			}
+			if len(codes) != 1 || codes[0] != wantCode {
+				t.Errorf("limit y%+.2f·U under %s: FHIR interpretation %v, want [%s]", c.offset, rule, codes, wantCode)
+			}
 		}
 	}
 }
