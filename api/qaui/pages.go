@@ -38,6 +38,8 @@ var uiPages = func() map[string]*template.Template {
 		"num":        func(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }, // a setting, as given
 		"pct100":     func(v float64) string { return strconv.FormatFloat(100*v, 'f', 1, 64) },
 		"pct":        func(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) },
+		"abs":        math.Abs,
+		"slug":       func(s string) string { return strings.ReplaceAll(s, " ", "-") },
 		"when":       func(t time.Time) string { return t.UTC().Format("2006-01-02 15:04:05 UTC") },
 		"day":        func(t time.Time) string { return t.UTC().Format("2006-01-02") },
 		"statusWord": statusWord,
