@@ -62,8 +62,37 @@ func predictionBudget(c *lab.Curve, bc lab.BudgetContext, pr calib.Prediction, r
 	return budgetOut(rec), nil
 }
 
-// budgetOut converts a budget record to its schema; the two share their
-// JSON form.
+// budgetOut converts a budget record to its schema for a prediction answer,
+// member by member (the route answers one per sample; a JSON round trip
+// cost more than the budget itself). The cautions are left out: the answer
+// states them once, beside its results.
 func budgetOut(rec *lab.BudgetRecord) *oapi.UncertaintyBudget {
-	return viaJSON[oapi.UncertaintyBudget](rec)
+	out := &oapi.UncertaintyBudget{Approach: oapi.UncertaintyApproach(rec.Approach), Combined: rec.Combined,
+		Coverage: oapi.CoverageRule(rec.Coverage), CoverageFactor: rec.CoverageFactor, EffectiveDf: rec.EffectiveDF,
+		Expanded: rec.Expanded, ExpandedText: rec.ExpandedText, Level: rec.Level, Notes: rec.Notes,
+		RelativeCombined: rec.RelativeCombined, Unit: rec.Unit, Value: rec.Value, ValueText: rec.ValueText,
+		Terms: make([]oapi.BudgetTerm, len(rec.Terms))}
+	for i, t := range rec.Terms {
+		// The compact form of a prediction answer: name, source,
+		// contribution, share and ν (the stored result has every member).
+		out.Terms[i] = oapi.BudgetTerm{Contribution: t.Contribution, Df: t.DF, Name: t.Name, Share: t.Share, Source: t.Source}
+		if t.Group != "" {
+			g := t.Group
+			out.Terms[i].Group = &g
+		}
+	}
+	if c := rec.Conformity; c != nil {
+		out.Conformity = &oapi.ConformityStatement{AcceptHigh: c.AcceptHigh, AcceptLow: c.AcceptLow, Accepted: c.Accepted,
+			Lower: c.Lower, Outcome: oapi.ConformityOutcome(c.Outcome), Risk: c.Risk, Rule: oapi.DecisionRule(c.Rule),
+			Statement: c.Statement, Unit: c.Unit, Upper: c.Upper}
+	}
+	if td := rec.TopDown; td != nil {
+		out.TopDown = &oapi.TopDownEstimate{Combined: td.Combined, Expanded: td.Expanded, ExpandedText: td.ExpandedText, Relative: td.Relative}
+	}
+	if m := rec.MonteCarlo; m != nil {
+		out.MonteCarlo = &oapi.MonteCarloCheck{Agrees: m.Agrees, Discarded: m.Discarded, Draws: m.Draws, GumHigh: m.GUMHigh,
+			GumLow: m.GUMLow, High: m.High, Level: m.Level, Low: m.Low, Mean: m.Mean, Sd: m.SD, Seed: int64(m.Seed),
+			ShortHigh: m.ShortHigh, ShortLow: m.ShortLow, Tolerance: m.Tolerance}
+	}
+	return out
 }

@@ -188,7 +188,7 @@ func runResultsHL7(run *lab.Run, results []lab.Result) ([]byte, error) {
 				obx.ValueText = b.ValueText
 				obx.Uncertainty = export.UncertaintyStatement(b.ExpandedText, r.Unit, b.CoverageFactor, b.Level)
 				if b.Conformity != nil {
-					obx.Notes = append(obx.Notes, "Conformity: "+b.Conformity.Statement)
+					obx.Notes = append(obx.Notes, "Conformity: "+b.Conformity.Statement+" "+b.Conformity.Risk)
 					obx.AbnormalFlags = append(obx.AbnormalFlags, hl7ConformityFlag(b.Conformity, b.Value))
 				}
 			}

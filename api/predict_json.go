@@ -147,14 +147,11 @@ func appendPredictionResult(b []byte, r *oapi.PredictionResult) ([]byte, float64
 		return b, *r.StandardError, false
 	}
 	if r.Uncertainty != nil {
-		// Rare and nested: encoding/json writes it (json.Marshal writes what
-		// an Encoder does, HTML-safe, without the newline).
-		u, err := json.Marshal(r.Uncertainty)
-		if err != nil {
-			return b, math.NaN(), false
-		}
 		b = append(b, `,"uncertainty":`...)
-		b = append(b, u...)
+		var bad float64
+		if b, bad, ok = appendBudgetJSON(b, r.Uncertainty); !ok {
+			return b, bad, false
+		}
 	}
 	b = append(b, '}')
 	return b, 0, true

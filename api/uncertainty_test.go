@@ -95,7 +95,7 @@ func computeHandBudget(stdRel, recMean, recU, recDF float64) handBudget {
 // budgetMethod defines a method whose nitrate results carry the three-term
 // budget (calibration, the run's standards, recovery) and, when limits is
 // not nil, a conformity statement.
-func (e *env) budgetMethod(t *testing.T, name string, limits map[string]any) {
+func (e *env) budgetMethod(t testing.TB, name string, limits map[string]any) {
 	t.Helper()
 	u := map[string]any{"terms": []string{"calibration", "standards", "recovery"},
 		"recovery": map[string]any{"mean": 0.98, "std_uncertainty": 0.02, "df": 10}}

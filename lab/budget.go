@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"slices"
+	"strconv"
 	"strings"
 
 	"curvekeeper/calib"
@@ -159,6 +160,8 @@ type StandardsTerm struct {
 	Code     string  // the material with the largest relative uncertainty
 	Stock    string  // the root of its lineage (its correlation group)
 	Relative float64 // u_rel
+	// Name and Group are the budget term's, made once per curve.
+	Name, Group string
 }
 
 // StandardsTermOf returns the standards' term of analyte from the run's
@@ -175,7 +178,8 @@ func StandardsTermOf(analyte string, codes []string, lineage map[string]*Materia
 			for seen := 0; root.PreparedFrom != "" && lineage[root.PreparedFrom] != nil && seen < 32; seen++ {
 				root = lineage[root.PreparedFrom]
 			}
-			out = &StandardsTerm{Code: m.Code, Stock: root.Code, Relative: m.RelativeUncertainty}
+			out = &StandardsTerm{Code: m.Code, Stock: root.Code, Relative: m.RelativeUncertainty,
+				Name: "standards: " + m.Code, Group: "stock:" + root.Code}
 		}
 	}
 	return out
@@ -315,7 +319,7 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 	if spec == nil {
 		return nil, nil
 	}
-	rec := &BudgetRecord{Approach: spec.Approach, Unit: bc.Unit, Terms: []BudgetTermOut{}, Notes: []string{}, Cautions: calib.Cautions()}
+	rec := &BudgetRecord{Approach: spec.Approach, Unit: bc.Unit, Terms: []BudgetTermOut{}, Notes: []string{}}
 	if rec.Approach == "" {
 		rec.Approach = ApproachBottomUp
 	}
@@ -324,7 +328,9 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 		rec.Notes = append(rec.Notes, "No budget: the curve gives no single non-zero concentration for these readings.")
 		return rec, nil
 	}
-	in := calib.BudgetInput{Model: calib.ModelProduct, Coverage: calib.Coverage(spec.Coverage), Terms: []calib.UncertaintyTerm{cal}}
+	terms := make([]calib.UncertaintyTerm, 1, 1+len(spec.Terms)+2*len(spec.Preparation))
+	terms[0] = cal
+	in := calib.BudgetInput{Model: calib.ModelProduct, Coverage: calib.Coverage(spec.Coverage), Terms: terms}
 	for _, t := range spec.Terms {
 		switch t {
 		case TermStandards:
@@ -332,8 +338,8 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 				rec.Notes = append(rec.Notes, "The method asks for the standards' term, but the run named no standard material of this analyte: the term is left out.")
 				continue
 			}
-			in.Terms = append(in.Terms, calib.UncertaintyTerm{Name: "standards: " + bc.Standards.Code, Source: calib.SourceStandard,
-				Kind: calib.DistNormal, Value: 1, StdUncertainty: bc.Standards.Relative, Group: "stock:" + bc.Standards.Stock})
+			in.Terms = append(in.Terms, calib.UncertaintyTerm{Name: bc.Standards.Name, Source: calib.SourceStandard,
+				Kind: calib.DistNormal, Value: 1, StdUncertainty: bc.Standards.Relative, Group: bc.Standards.Group})
 		case TermPreparation:
 			for i, st := range spec.Preparation {
 				n := fmt.Sprintf("preparation step %d", i+1)
@@ -373,10 +379,20 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 	}
 	rec.bottomUp, rec.input = &b, in
 	rec.fill(b)
-	for _, t := range b.Terms {
-		rec.Terms = append(rec.Terms, BudgetTermOut{Name: t.Name, Source: string(t.Source), Distribution: string(t.Kind),
-			Value: t.Value, StdUncertainty: t.StdUncertainty, Relative: finiteOrNil(t.Relative), Coefficient: t.Coefficient,
-			Contribution: t.Contribution, Share: t.Share, DF: finiteOrNil(t.DF), Group: t.Group})
+	// The terms' optional numbers point into one array, not one allocation each.
+	nums := make([]float64, 2*len(b.Terms))
+	ptr := func(k int, v float64) *float64 {
+		if !calib.Finite(v) {
+			return nil
+		}
+		nums[k] = v
+		return &nums[k]
+	}
+	rec.Terms = make([]BudgetTermOut, len(b.Terms))
+	for i, t := range b.Terms {
+		rec.Terms[i] = BudgetTermOut{Name: t.Name, Source: string(t.Source), Distribution: string(t.Kind),
+			Value: t.Value, StdUncertainty: t.StdUncertainty, Relative: ptr(2*i, t.Relative), Coefficient: t.Coefficient,
+			Contribution: t.Contribution, Share: t.Share, DF: ptr(2*i+1, t.DF), Group: t.Group}
 	}
 	if rec.Approach != ApproachBottomUp {
 		td, err := calib.ComputeBudget(calib.BudgetInput{Model: calib.ModelSum, Coverage: calib.CoverageK2,
@@ -418,21 +434,21 @@ func (r *BudgetRecord) fill(b calib.Budget) {
 }
 
 // ConformityStatement words a conformity statement: the result with its U,
-// the rule, the limits and the outcome, then the risk.
+// the limits, the rule and the outcome (the risk is worded apart, in Risk).
 func ConformityStatement(c calib.Conformity, value, expanded string) string {
-	var lim []string
+	lim := make([]string, 0, 2)
 	if c.Spec.HasLower {
-		lim = append(lim, fmt.Sprintf("lower limit %g %s", c.Spec.Lower, c.Spec.Unit))
+		lim = append(lim, "lower limit "+strconv.FormatFloat(c.Spec.Lower, 'g', -1, 64)+" "+c.Spec.Unit)
 	}
 	if c.Spec.HasUpper {
-		lim = append(lim, fmt.Sprintf("upper limit %g %s", c.Spec.Upper, c.Spec.Unit))
+		lim = append(lim, "upper limit "+strconv.FormatFloat(c.Spec.Upper, 'g', -1, 64)+" "+c.Spec.Unit)
 	}
 	rule := "simple acceptance"
 	if c.Rule == calib.RuleGuardBand {
 		rule = "guard band w = U"
 	}
-	return fmt.Sprintf("Result %s ± %s %s against the %s under %s: %s. %s", value, expanded, c.Spec.Unit,
-		strings.Join(lim, " and "), rule, c.Outcome, c.Risk)
+	return "Result " + value + " ± " + expanded + " " + c.Spec.Unit + " against the " + strings.Join(lim, " and ") +
+		" under " + rule + ": " + c.Outcome + "."
 }
 
 // AddMonteCarlo adds the Monte Carlo check (JCGM 101) of the bottom-up budget
@@ -484,9 +500,10 @@ func ResultBudgetJSON(c *CurveInput, responses []float64, dilution float64) ([]b
 		return nil, nil // Quantify flags the result as not quantifiable
 	}
 	rec, err := ResultBudget(c.Report, pr, responses, dilution, bc)
-	if err != nil {
+	if err != nil || rec == nil {
 		return nil, err
 	}
+	rec.Cautions = calib.Cautions()
 	return rec.JSON()
 }
 
