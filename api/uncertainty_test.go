@@ -254,6 +254,31 @@ func TestResultBudgetThreeTerms(t *testing.T) {
 	if *again.Results[0].Uncertainty.MonteCarlo != *m {
 		t.Errorf("the same seed gave %+v, then %+v", *m, *again.Results[0].Uncertainty.MonteCarlo)
 	}
+
+	// A sample posted after its run gets the same budget for the same
+	// readings (the run's materials still give the standards' term).
+	late := decode[oapi.RunResults](t, e.postJSON(t, e.admin, "/v1/runs/"+run.ID.String()+"/samples",
+		map[string]any{"samples": []map[string]any{{"id": "W-2", "analyte": "nitrate", "responses": budgetSample}}}), http.StatusCreated)
+	check(t, "late sample", late.Results[0].Uncertainty)
+
+	// A revision by exclusion quantifies the run's samples again, each with
+	// its budget: the calibration term now has ν = 11 − 2 = 9.
+	rev := decode[oapi.Curve](t, e.postJSON(t, e.admin, "/v1/curves/"+run.Curves[0].ID.String()+"/exclusions", map[string]any{
+		"reason": "air bubble in the L6 injection", "points": []map[string]any{{"level": "L6", "replicate": 2}}}), http.StatusCreated)
+	all := decode[oapi.RunResults](t, e.get(t, e.admin, path), http.StatusOK)
+	revised := 0
+	for _, r := range all.Results {
+		if r.CurveID != rev.ID {
+			continue
+		}
+		revised++
+		if b := r.Uncertainty; b == nil || len(b.Terms) != 3 || b.Terms[0].Df == nil || *b.Terms[0].Df != 9 {
+			t.Errorf("result %d against the revision: budget %+v, want three terms with ν_cal = 9", r.ID, b)
+		}
+	}
+	if revised != 2 {
+		t.Errorf("%d results against the revision, want 2", revised)
+	}
 }
 
 // TestResultConformity states the conformity of one result against an

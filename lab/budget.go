@@ -491,15 +491,22 @@ func (c *CurveInput) BudgetContext() BudgetContext {
 // responses at dilution against the new curve c; nil when c's analyte has
 // no uncertainty spec.
 func ResultBudgetJSON(c *CurveInput, responses []float64, dilution float64) ([]byte, error) {
-	bc := c.BudgetContext()
-	if bc.Spec == nil || len(c.Report.Coefficients) == 0 {
+	return BudgetJSON(c.Report, responses, dilution, c.BudgetContext())
+}
+
+// BudgetJSON is the stored budget (JSON, with the cautions) of a result of
+// readings responses at dilution against the curve report rep; nil when bc
+// has no spec or the curve gives no prediction (Quantify then flags the
+// result).
+func BudgetJSON(rep *calib.Report, responses []float64, dilution float64, bc BudgetContext) ([]byte, error) {
+	if bc.Spec == nil || rep == nil || len(rep.Coefficients) == 0 {
 		return nil, nil
 	}
-	pr, err := c.Report.Predict(responses, dilution, 0)
+	pr, err := rep.Predict(responses, dilution, 0)
 	if err != nil {
-		return nil, nil // Quantify flags the result as not quantifiable
+		return nil, nil
 	}
-	rec, err := ResultBudget(c.Report, pr, responses, dilution, bc)
+	rec, err := ResultBudget(rep, pr, responses, dilution, bc)
 	if err != nil || rec == nil {
 		return nil, err
 	}
@@ -517,17 +524,26 @@ func (s *Service) CurveBudgetContext(ctx context.Context, c *Curve) (BudgetConte
 	if err != nil {
 		return BudgetContext{}, err
 	}
-	a, ok := m.Analyte(c.Analyte)
+	return s.budgetContext(ctx, m, nil, c.RunID, c.Analyte)
+}
+
+// budgetContext is the budget context of analyte's results in run runID
+// (read when the spec needs its materials, unless run is given) under
+// method m.
+func (s *Service) budgetContext(ctx context.Context, m *Method, run *Run, runID, analyte string) (BudgetContext, error) {
+	a, ok := m.Analyte(analyte)
 	if !ok || a.Uncertainty == nil {
 		return BudgetContext{}, nil
 	}
-	bc := BudgetContext{Spec: a.Uncertainty, Unit: c.Unit}
+	bc := BudgetContext{Spec: a.Uncertainty, Unit: a.Unit}
 	if !slices.Contains(a.Uncertainty.Terms, TermStandards) {
 		return bc, nil
 	}
-	run, err := s.GetRun(ctx, c.RunID)
-	if err != nil {
-		return BudgetContext{}, err
+	if run == nil {
+		var err error
+		if run, err = s.GetRun(ctx, runID); err != nil {
+			return BudgetContext{}, err
+		}
 	}
 	if len(run.Materials) == 0 {
 		return bc, nil
@@ -536,6 +552,23 @@ func (s *Service) CurveBudgetContext(ctx context.Context, c *Curve) (BudgetConte
 	if err != nil {
 		return BudgetContext{}, err
 	}
-	bc.Standards = StandardsTermOf(c.Analyte, run.Materials, lineage)
+	bc.Standards = StandardsTermOf(analyte, run.Materials, lineage)
 	return bc, nil
+}
+
+// runBudgetContexts returns the budget context of each analyte of samples
+// in run under method m; analytes without a spec are absent.
+func (s *Service) runBudgetContexts(ctx context.Context, m *Method, run *Run, samples []Sample) (map[string]BudgetContext, error) {
+	out := map[string]BudgetContext{}
+	for _, sm := range samples {
+		if _, done := out[sm.Analyte]; done {
+			continue
+		}
+		bc, err := s.budgetContext(ctx, m, run, run.ID, sm.Analyte)
+		if err != nil {
+			return nil, err
+		}
+		out[sm.Analyte] = bc
+	}
+	return out, nil
 }

@@ -90,6 +90,9 @@ type RevisionInput struct {
 	Reason      string
 	RangeReason string // "" when none was given
 	Actor       string
+	// Budget is the budget context of the curve's analyte (the original's
+	// method revision and run): the revision's results carry budgets.
+	Budget BudgetContext
 }
 
 // Exclusion records why a revision left readings out.
