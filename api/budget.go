@@ -47,7 +47,7 @@ func predictionBudget(c *lab.Curve, bc lab.BudgetContext, pr calib.Prediction, r
 		return nil, nil
 	}
 	rec, err := lab.ResultBudget(c.Report, pr, responses, dilution, bc)
-	if err != nil {
+	if err != nil || rec == nil {
 		return nil, err
 	}
 	if mc != nil {

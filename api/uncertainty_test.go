@@ -364,3 +364,46 @@ func TestResultConformity(t *testing.T) {
 		}
 	}
 }
+
+// TestResultBudgetFourPL: a non-linear (4PL) curve's budget takes its
+// calibration term from the engine's s(x̂0) of the curve (the delta-method
+// standard error the prediction reports), combines it with a recovery term
+// by the law of propagation for a product (JCGM 100 §5.1.6; hand
+// computation here) and uses the method's fixed k = 2; a response above the
+// upper asymptote has no concentration and no budget.
+func TestResultBudgetFourPL(t *testing.T) {
+	t.Parallel()
+	e := newEnv(t)
+	decode[oapi.Method](t, e.postJSON(t, e.admin, "/v1/methods", map[string]any{"name": "elisa-4pl-budget", "model": "4pl",
+		"weighting": "1/y^2", "analytes": []map[string]any{{"name": "cytokine-x", "unit": "ng/mL", "uncertainty": map[string]any{
+			"terms": []string{"calibration", "recovery"}, "coverage": "k2",
+			"recovery": map[string]any{"mean": 0.95, "std_uncertainty": 0.03}}}}}), http.StatusCreated)
+	xs := []float64{0.5, 1, 2.5, 5, 10, 25, 50, 100}
+	ys := [][]float64{{0.081, 0.077}, {0.118, 0.124}, {0.236, 0.229}, {0.432, 0.447},
+		{0.806, 0.781}, {1.542, 1.571}, {2.118, 2.071}, {2.452, 2.497}}
+	var stds []map[string]any
+	for i, x := range xs {
+		stds = append(stds, map[string]any{"analyte": "cytokine-x", "level": fmt.Sprintf("C%d", i+1), "concentration": x, "responses": ys[i]})
+	}
+	run := e.run(t, e.admin, runBody("elisa-4pl-budget", "plate-reader-2", baseTime, stds))
+	got := decode[oapi.PredictionResponse](t, e.postJSON(t, e.admin, "/v1/curves/"+run.Curves[0].ID.String()+"/predictions",
+		map[string]any{"samples": []map[string]any{{"id": "P1-A3", "responses": []float64{0.61, 0.63}}, {"id": "P1-H1", "responses": []float64{4}}}}),
+		http.StatusOK)
+	res := got.Results[0]
+	b := res.Uncertainty
+	if res.Concentration == nil || res.StandardError == nil || b == nil || len(b.Terms) != 2 {
+		t.Fatalf("result %+v with budget %+v", res, b)
+	}
+	y, se := *res.Concentration, *res.StandardError
+	uRec := y * 0.03 / 0.95
+	uc := math.Sqrt(se*se + uRec*uRec)
+	e10 := math.Pow(10, math.Floor(math.Log10(2*uc))-1)
+	if math.Abs(b.Terms[0].Contribution-se) > 1e-12*se || math.Abs(b.Combined-uc) > 1e-12*uc ||
+		b.CoverageFactor != 2 || b.Coverage != oapi.CoverageK2 || math.Abs(b.Expanded-math.Round(2*uc/e10)*e10) > 1e-15 {
+		t.Errorf("budget u_cal %v (s(x̂0) %v), u_c %v (hand %v), k %v (%s), U %v (hand %v)",
+			b.Terms[0].Contribution, se, b.Combined, uc, b.CoverageFactor, b.Coverage, b.Expanded, math.Round(2*uc/e10)*e10)
+	}
+	if h := got.Results[1]; h.Concentration != nil || h.Uncertainty != nil {
+		t.Errorf("above the asymptote: %+v with budget %+v; want neither", h, h.Uncertainty)
+	}
+}

@@ -311,9 +311,9 @@ func finiteOrNil(v float64) *float64 {
 //	recovery     u(R̄)/R̄, uncorrected
 //
 // then the approach, the coverage, and the conformity with the method's
-// limits (calib.Decide with U as reported). nil without a spec. A result
-// without a single concentration, or a zero one, has a record with no
-// terms and a note saying why.
+// limits (calib.Decide with U as reported). nil without a spec, and for a
+// result without a single non-zero concentration (its flags say why) or
+// whose terms the engine refuses.
 func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, dilution float64, bc BudgetContext) (*BudgetRecord, error) {
 	spec := bc.Spec
 	if spec == nil {
@@ -325,8 +325,7 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 	}
 	cal, err := rep.CalibrationTermOf("calibration: s(x̂0) from the curve", pr)
 	if err != nil || pr.Concentration == 0 {
-		rec.Notes = append(rec.Notes, "No budget: the curve gives no single non-zero concentration for these readings.")
-		return rec, nil
+		return nil, nil // no single non-zero concentration: nothing to state U of (the flags say why)
 	}
 	terms := make([]calib.UncertaintyTerm, 1, 1+len(spec.Terms)+2*len(spec.Preparation))
 	terms[0] = cal
@@ -373,9 +372,7 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 	}
 	b, err := calib.ComputeBudget(in)
 	if err != nil {
-		rec.Notes = append(rec.Notes, "No budget: "+err.Error())
-		rec.Terms = []BudgetTermOut{}
-		return rec, nil
+		return nil, nil // e.g. a negative x̂0 with a factor model: the result states no budget
 	}
 	rec.bottomUp, rec.input = &b, in
 	rec.fill(b)
