@@ -46,18 +46,16 @@ func predictionBudget(c *lab.Curve, bc lab.BudgetContext, pr calib.Prediction, r
 	if bc.Spec == nil {
 		return nil, nil
 	}
-	rec, err := lab.ResultBudget(c.Report, pr, responses, dilution, bc)
-	if err != nil || rec == nil {
-		return nil, err
-	}
 	if mc != nil {
 		req := lab.MCRequest{Seed: uint64(mc.Seed)}
 		if mc.Draws != nil {
 			req.Draws = *mc.Draws
 		}
-		if err := rec.AddMonteCarlo(req); err != nil {
-			return nil, err
-		}
+		bc.MonteCarlo = &req // bc is this call's copy
+	}
+	rec, err := lab.ResultBudget(c.Report, pr, responses, dilution, bc)
+	if err != nil || rec == nil {
+		return nil, err
 	}
 	return budgetOut(rec), nil
 }

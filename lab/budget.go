@@ -191,6 +191,8 @@ type BudgetContext struct {
 	Spec      *UncertaintySpec
 	Unit      string
 	Standards *StandardsTerm
+	// MonteCarlo, set for one request, adds the Monte Carlo check.
+	MonteCarlo *MCRequest
 }
 
 // MCRequest asks for a Monte Carlo check of a budget (JCGM 101).
@@ -220,8 +222,6 @@ type BudgetRecord struct {
 	Conformity       *ConformityOut    `json:"conformity,omitempty"`
 	Notes            []string          `json:"notes"`
 	Cautions         []string          `json:"cautions"`
-	bottomUp         *calib.Budget     // for Monte Carlo; not stored
-	input            calib.BudgetInput // for Monte Carlo; not stored
 }
 
 // BudgetTermOut is one term of a budget with its share of u_c².
@@ -374,7 +374,6 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 	if err != nil {
 		return nil, nil // e.g. a negative x̂0 with a factor model: the result states no budget
 	}
-	rec.bottomUp, rec.input = &b, in
 	rec.fill(b)
 	// The terms' optional numbers point into one array, not one allocation each.
 	nums := make([]float64, 2*len(b.Terms))
@@ -390,6 +389,11 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 		rec.Terms[i] = BudgetTermOut{Name: t.Name, Source: string(t.Source), Distribution: string(t.Kind),
 			Value: t.Value, StdUncertainty: t.StdUncertainty, Relative: ptr(2*i, t.Relative), Coefficient: t.Coefficient,
 			Contribution: t.Contribution, Share: t.Share, DF: ptr(2*i+1, t.DF), Group: t.Group}
+	}
+	if bc.MonteCarlo != nil {
+		if err := rec.addMonteCarlo(in, &b, *bc.MonteCarlo); err != nil {
+			return nil, err
+		}
 	}
 	if rec.Approach != ApproachBottomUp {
 		td, err := calib.ComputeBudget(calib.BudgetInput{Model: calib.ModelSum, Coverage: calib.CoverageK2,
@@ -448,20 +452,17 @@ func ConformityStatement(c calib.Conformity, value, expanded string) string {
 		" under " + rule + ": " + c.Outcome + "."
 }
 
-// AddMonteCarlo adds the Monte Carlo check (JCGM 101) of the bottom-up budget
-// to r: the symmetric and shortest coverage intervals beside y ± U and the
-// JCGM 101 §8.2 comparison at two significant digits.
-func (r *BudgetRecord) AddMonteCarlo(req MCRequest) error {
-	if r == nil || r.bottomUp == nil {
-		return nil
-	}
-	mc, err := calib.MonteCarlo(r.input, calib.MCOptions{Draws: req.Draws, Seed: req.Seed})
+// addMonteCarlo adds the Monte Carlo check (JCGM 101) of the bottom-up
+// budget b of input in to r: the symmetric and shortest coverage intervals
+// beside y ± U and the JCGM 101 §8.2 comparison at two significant digits.
+func (r *BudgetRecord) addMonteCarlo(in calib.BudgetInput, b *calib.Budget, req MCRequest) error {
+	mc, err := calib.MonteCarlo(in, calib.MCOptions{Draws: req.Draws, Seed: req.Seed})
 	if err != nil {
 		return err
 	}
 	out := &MonteCarloOut{Draws: mc.Draws, Discarded: mc.Discarded, Seed: mc.Seed, Level: mc.Level, Mean: mc.Mean, SD: mc.SD,
 		Low: mc.Low, High: mc.High, ShortLow: mc.ShortLow, ShortHigh: mc.ShortHigh}
-	if chk, err := calib.CompareGUMMC(*r.bottomUp, mc, 2); err == nil {
+	if chk, err := calib.CompareGUMMC(*b, mc, 2); err == nil {
 		out.GUMLow, out.GUMHigh, out.Tolerance, out.Agrees = chk.GUMLow, chk.GUMHigh, chk.Delta, chk.Agree
 	}
 	r.MonteCarlo = out
