@@ -204,24 +204,24 @@ type MCRequest struct {
 // BudgetRecord is a result's uncertainty budget and conformity statement as
 // it is stored (JSON in sample_results.uncertainty) and answered.
 type BudgetRecord struct {
-	Approach         string            `json:"approach"`
-	Value            float64           `json:"value"`
-	ValueText        string            `json:"value_text"`
-	Unit             string            `json:"unit"`
-	Combined         float64           `json:"combined"`
-	RelativeCombined *float64          `json:"relative_combined"`
-	EffectiveDF      *float64          `json:"effective_df"` // null: infinite
-	Coverage         string            `json:"coverage"`
-	Level            float64           `json:"level"`
-	CoverageFactor   float64           `json:"coverage_factor"`
-	Expanded         float64           `json:"expanded"`
-	ExpandedText     string            `json:"expanded_text"`
-	Terms            []BudgetTermOut   `json:"terms"`
-	TopDown          *TopDownOut       `json:"top_down,omitempty"`
-	MonteCarlo       *MonteCarloOut    `json:"monte_carlo,omitempty"`
-	Conformity       *ConformityOut    `json:"conformity,omitempty"`
-	Notes            []string          `json:"notes"`
-	Cautions         []string          `json:"cautions"`
+	Approach         string          `json:"approach"`
+	Value            float64         `json:"value"`
+	ValueText        string          `json:"value_text"`
+	Unit             string          `json:"unit"`
+	Combined         float64         `json:"combined"`
+	RelativeCombined *float64        `json:"relative_combined"`
+	EffectiveDF      *float64        `json:"effective_df"` // null: infinite
+	Coverage         string          `json:"coverage"`
+	Level            float64         `json:"level"`
+	CoverageFactor   float64         `json:"coverage_factor"`
+	Expanded         float64         `json:"expanded"`
+	ExpandedText     string          `json:"expanded_text"`
+	Terms            []BudgetTermOut `json:"terms"`
+	TopDown          *TopDownOut     `json:"top_down,omitempty"`
+	MonteCarlo       *MonteCarloOut  `json:"monte_carlo,omitempty"`
+	Conformity       *ConformityOut  `json:"conformity,omitempty"`
+	Notes            []string        `json:"notes"`
+	Cautions         []string        `json:"cautions"`
 }
 
 // BudgetTermOut is one term of a budget with its share of u_c².
