@@ -62,7 +62,7 @@ func TestUICurvePageShowsResultBudget(t *testing.T) {
 	for _, want := range []string{
 		`class="grid compact budget-table"`, "PB-W-21", "Uncertainty budget (bottom_up", "calibration: s(x̂0) from the curve",
 		"standards: CRM-PB-7", "repeatability of the sample", "Share (%)", "u_c = ", "ν_eff = ", "k = ",
-		"Conformity (guard_band_u)", "upper limit 10 ug/L", "under guard band w = U", "conf-",
+		"Conformity (guard_band_u)", "upper limit 10 ug/L", "under guard band w = U", "conf-", "the chance that the true value lies outside",
 	} {
 		if !strings.Contains(p.body, want) {
 			t.Errorf("curve page lacks %q", want)
