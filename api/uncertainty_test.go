@@ -1,6 +1,8 @@
 package api_test
 
 import (
+	"bytes"
+	"encoding/csv"
 	"fmt"
 	"math"
 	"net/http"
@@ -234,6 +236,21 @@ func TestResultBudgetThreeTerms(t *testing.T) {
 	}
 	if !strings.Contains(msg, "NTE|") || !strings.Contains(msg, "Expanded uncertainty U = "+stored.ExpandedText) {
 		t.Errorf("HL7 message has no NTE with U = %s:\n%s", stored.ExpandedText, strings.ReplaceAll(msg, "\r", "\n"))
+	}
+
+	// CSV: the rounded value, U, k and level in their columns.
+	r = e.do(t, call{method: http.MethodGet, path: path, token: e.admin, header: map[string]string{"Accept": "text/csv"}})
+	rows, err := csv.NewReader(bytes.NewReader(r.body)).ReadAll()
+	if err != nil || len(rows) != 2 {
+		t.Fatalf("CSV: %v, %d rows", err, len(rows))
+	}
+	col := map[string]string{}
+	for i, h := range rows[0] {
+		col[h] = rows[1][i]
+	}
+	if col["value"] != stored.ValueText || col["expanded_uncertainty"] != stored.ExpandedText ||
+		col["coverage_factor"] != strconv.FormatFloat(h.k, 'f', 2, 64) || col["coverage_level"] != "0.95" {
+		t.Errorf("CSV row %v, want value %s, U %s, k %.2f, level 0.95", col, stored.ValueText, stored.ExpandedText, h.k)
 	}
 
 	// Monte Carlo on request: seeded, at least 10⁵ draws, and on this
