@@ -135,3 +135,13 @@ func sequenceFrom(s *oapi.RunSequenceInput) *lab.RunSequence {
 	}
 	return out
 }
+
+// viaJSON converts v into a T with the same JSON form (the lab's and the
+// spec's uncertainty types share their member names); nil when they do not.
+func viaJSON[T any](v any) *T {
+	b, err := json.Marshal(v)
+	if err != nil {
+		return nil
+	}
+	return jsonPtr[T](b)
+}

@@ -50,6 +50,9 @@ func (s *Server) CreateMethod(ctx context.Context, req oapi.CreateMethodRequestO
 		if a.Model != nil {
 			an.Model = calib.Model(*a.Model)
 		}
+		if a.Uncertainty != nil {
+			an.Uncertainty = viaJSON[lab.UncertaintySpec](a.Uncertainty)
+		}
 		in.Analytes = append(in.Analytes, an)
 	}
 	m, created, err := s.lab.DefineMethod(ctx, p, in)
@@ -214,6 +217,9 @@ func methodOut(m *lab.Method) oapi.Method {
 		if a.Model != "" {
 			mo := oapi.Model(a.Model)
 			oa.Model = &mo
+		}
+		if a.Uncertainty != nil {
+			oa.Uncertainty = viaJSON[oapi.UncertaintySpec](a.Uncertainty)
 		}
 		out.Analytes = append(out.Analytes, oa)
 	}

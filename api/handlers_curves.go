@@ -96,7 +96,7 @@ func (s *Server) GetCurve(ctx context.Context, req oapi.GetCurveRequestObject) (
 // CreatePredictions converts unknowns' responses into concentrations with
 // intervals and flags.
 func (s *Server) CreatePredictions(ctx context.Context, req oapi.CreatePredictionsRequestObject) (oapi.CreatePredictionsResponseObject, error) {
-	out, err := s.predict(ctx, req.ID.String(), req.Body.Confidence, req.Body.Samples)
+	out, err := s.predict(ctx, req.ID.String(), req.Body.Confidence, req.Body.Samples, req.Body.MonteCarlo)
 	if err != nil {
 		return nil, err
 	}
@@ -104,7 +104,7 @@ func (s *Server) CreatePredictions(ctx context.Context, req oapi.CreatePredictio
 }
 
 // predict quantifies samples against curve id; nothing is stored.
-func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confidence, samples []oapi.PredictionSample) (oapi.PredictionResponse, error) {
+func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confidence, samples []oapi.PredictionSample, mc *oapi.MonteCarloRequest) (oapi.PredictionResponse, error) {
 	c, err := s.curve(ctx, id)
 	if err != nil {
 		return oapi.PredictionResponse{}, err
@@ -126,14 +126,26 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		CurveStatus: oapi.CurveStatus(status), CurveVerdict: oapi.Verdict(r.Verdict),
 		Cautions: calib.Cautions(), Results: make([]oapi.PredictionResult, 0, len(samples)),
 	}
+	bc, err := s.budgetContext(ctx, c)
+	if err != nil {
+		return oapi.PredictionResponse{}, err
+	}
+	var budgetErr error
 	err = lab.Predict(c, conf, len(samples), func(i int) ([]float64, float64) {
 		if d := samples[i].Dilution; d != nil {
 			return samples[i].Responses, *d
 		}
 		return samples[i].Responses, 1
 	}, func(i int, pr calib.Prediction) {
-		out.Results = append(out.Results, predictionOut(string(samples[i].ID), pr))
+		res := predictionOut(string(samples[i].ID), pr)
+		if bc.Spec != nil && budgetErr == nil {
+			res.Uncertainty, budgetErr = predictionBudget(c, bc, pr, samples[i].Responses, pr.Dilution, mc)
+		}
+		out.Results = append(out.Results, res)
 	})
+	if err == nil {
+		err = budgetErr
+	}
 	if err != nil {
 		return oapi.PredictionResponse{}, err
 	}

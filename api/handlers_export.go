@@ -14,6 +14,7 @@ import (
 
 	"curvekeeper/api/oapi"
 	"curvekeeper/calib"
+	"curvekeeper/export"
 	"curvekeeper/export/csvout"
 	"curvekeeper/export/fhir"
 	"curvekeeper/export/hl7v2"
@@ -86,6 +87,14 @@ func (s *Server) runResultsAs(ctx context.Context, rd *lab.Service, runID string
 			if r.Concentration != nil {
 				row.Value = strconv.FormatFloat(*r.Concentration, 'g', -1, 64)
 			}
+			if b := resultBudget(r); b != nil && b.ExpandedText != "" {
+				row.Value, row.ExpandedUncertainty = b.ValueText, b.ExpandedText
+				row.CoverageFactor = strconv.FormatFloat(b.CoverageFactor, 'f', 2, 64)
+				row.Level = strconv.FormatFloat(b.Level, 'f', -1, 64)
+				if b.Conformity != nil {
+					row.Conformity = b.Conformity.Outcome + " (" + b.Conformity.Rule + ")"
+				}
+			}
 			rows = append(rows, row)
 		}
 		var buf bytes.Buffer
@@ -108,6 +117,15 @@ func (s *Server) runResultsAs(ctx context.Context, rd *lab.Service, runID string
 			Effective: r.AcquiredAt, Issued: r.CreatedAt, Device: run.Instrument, CurveID: r.CurveID,
 			Method: fmt.Sprintf("%s revision %d", run.Method, run.MethodRevision),
 			Notes:  append([]string{"Sample " + r.SampleID + "."}, calib.Cautions()...)})
+		if b := resultBudget(r); b != nil && b.ExpandedText != "" {
+			o := &obs[len(obs)-1]
+			o.ValueText, o.StandardUncertainty, o.Expanded, o.ExpandedText = b.ValueText, b.Combined, b.Expanded, b.ExpandedText
+			o.CoverageFactor, o.Level, o.StudentT = b.CoverageFactor, b.Level, b.Coverage == string(calib.CoverageStudentT)
+			if b.Conformity != nil {
+				c := b.Conformity.Conformity(b.Value, b.Expanded)
+				o.Conformity = &c
+			}
+		}
 	}
 	b, err := fhir.Bundle(obs, issued)
 	if err != nil {
@@ -166,6 +184,14 @@ func runResultsHL7(run *lab.Run, results []lab.Result) ([]byte, error) {
 				obx.Notes = append(obx.Notes, "Calibration flags: "+strings.Join(r.Flags, ", ")+".")
 			}
 			obx.Value = *r.Concentration
+			if b := resultBudget(r); b != nil && b.ExpandedText != "" {
+				obx.ValueText = b.ValueText
+				obx.Uncertainty = export.UncertaintyStatement(b.ExpandedText, r.Unit, b.CoverageFactor, b.Level)
+				if b.Conformity != nil {
+					obx.Notes = append(obx.Notes, "Conformity: "+b.Conformity.Statement+" "+b.Conformity.Risk)
+					obx.AbnormalFlags = append(obx.AbnormalFlags, hl7ConformityFlag(b.Conformity, b.Value))
+				}
+			}
 			m.Results = append(m.Results, obx)
 		}
 		if len(m.Results) == 0 {
@@ -178,4 +204,34 @@ func runResultsHL7(run *lab.Run, results []lab.Result) ([]byte, error) {
 		out = append(out, b...)
 	}
 	return out, nil
+}
+
+// resultBudget returns r's stored budget; nil when it has none (or none
+// that reads back).
+func resultBudget(r lab.Result) *lab.BudgetRecord {
+	if len(r.Uncertainty) == 0 {
+		return nil
+	}
+	var b lab.BudgetRecord
+	if json.Unmarshal(r.Uncertainty, &b) != nil {
+		return nil
+	}
+	return &b
+}
+
+// hl7ConformityFlag maps a conformity statement to an OBX-8 abnormal flag
+// (HL7 table 0078): pass N (normal); a conditional outcome A (abnormal:
+// too close to the limit to state conformity at the level of U); fail above
+// the upper limit H, below the lower limit L.
+func hl7ConformityFlag(c *lab.ConformityOut, value float64) string {
+	switch c.Outcome {
+	case calib.OutcomePass:
+		return "N"
+	case calib.OutcomeConditionalPass, calib.OutcomeConditionalFail:
+		return "A"
+	}
+	if c.Upper != nil && value > *c.Upper {
+		return "H"
+	}
+	return "L"
 }

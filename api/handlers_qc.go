@@ -162,7 +162,7 @@ func (s *Server) CreateInstrumentPredictionBatch(ctx context.Context, req oapi.C
 			}
 			return nil, err
 		}
-		p, err := s.predict(ctx, in.Curve.ID, req.Body.Confidence, a.Samples)
+		p, err := s.predict(ctx, in.Curve.ID, req.Body.Confidence, a.Samples, nil)
 		if err != nil {
 			return nil, err
 		}
@@ -183,7 +183,7 @@ func (s *Server) CreateInstrumentPredictions(ctx context.Context, req oapi.Creat
 	if err != nil {
 		return nil, err
 	}
-	out, err := s.predict(ctx, in.Curve.ID, req.Body.Confidence, req.Body.Samples)
+	out, err := s.predict(ctx, in.Curve.ID, req.Body.Confidence, req.Body.Samples, nil)
 	if err != nil {
 		return nil, err
 	}

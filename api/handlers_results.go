@@ -86,7 +86,8 @@ func (s *Server) ListResultEvents(ctx context.Context, req oapi.ListResultEvents
 			RunID: uuidOf(e.RunID), CurveID: uuidOf(e.CurveID), Analyte: e.Analyte, Unit: e.Unit, Concentration: e.Concentration,
 			AcquiredAt: oapi.NewTimestamp(e.AcquiredAt), Dilution: e.Dilution, StandardError: e.StandardError,
 			Interval:       oapi.Interval{Low: e.IntervalLow, High: e.IntervalHigh, Level: e.IntervalLevel, Bounded: e.IntervalBounded},
-			IntervalMethod: e.IntervalMethod, Flags: enums[oapi.ResultFlag](e.Flags), Reported: jsonPtr[oapi.ReportedValue](e.Reported)}
+			IntervalMethod: e.IntervalMethod, Flags: enums[oapi.ResultFlag](e.Flags), Reported: jsonPtr[oapi.ReportedValue](e.Reported),
+			Uncertainty: jsonPtr[oapi.UncertaintyBudget](e.Uncertainty)}
 		if e.Previous != "" {
 			prev := oapi.ReleaseState(e.Previous)
 			oe.PreviousState = &prev
@@ -108,7 +109,7 @@ func resultsOut(rs []lab.Result) []oapi.SampleResult {
 			ReleaseState: oapi.ReleaseState(r.ReleaseState), ReleaseReason: r.ReleaseReason,
 			StateChangedAt: oapi.NewTimestamp(r.StateChangedAt), CreatedAt: oapi.NewTimestamp(r.CreatedAt), Actor: r.CreatedBy,
 			Reported: jsonPtr[oapi.ReportedValue](r.Reported), InternalStandard: jsonPtr[oapi.ISCheck](r.ISCheck),
-			Sequence: jsonPtr[oapi.SequenceRecord](r.Sequence),
+			Sequence: jsonPtr[oapi.SequenceRecord](r.Sequence), Uncertainty: jsonPtr[oapi.UncertaintyBudget](r.Uncertainty),
 		})
 	}
 	return out

@@ -45,6 +45,7 @@ var (
 		MeanResponse   float64
 		Readings       int
 		StandardError  *float64
+		Uncertainty    *oapi.UncertaintyBudget
 	}(oapi.PredictionResult{})
 	_ = struct {
 		Bounded  bool
@@ -144,6 +145,13 @@ func appendPredictionResult(b []byte, r *oapi.PredictionResult) ([]byte, float64
 	b = append(b, `,"standard_error":`...)
 	if b, ok = appendJSONFloatPtr(b, r.StandardError); !ok {
 		return b, *r.StandardError, false
+	}
+	if r.Uncertainty != nil {
+		b = append(b, `,"uncertainty":`...)
+		var bad float64
+		if b, bad, ok = appendBudgetJSON(b, r.Uncertainty); !ok {
+			return b, bad, false
+		}
 	}
 	b = append(b, '}')
 	return b, 0, true

@@ -176,8 +176,51 @@ func randPredictionResponse(r *rand.Rand) *oapi.PredictionResponse {
 			Interval:       oapi.Interval{Bounded: r.IntN(2) == 0, High: randFloatPtr(r), Level: randFloat(r), Low: randFloatPtr(r)},
 			IntervalMethod: randString(r), MeanResponse: randFloat(r), Readings: randReadings(r), StandardError: randFloatPtr(r),
 		}
+		if r.IntN(3) == 0 {
+			v.Results[i].Uncertainty = randBudget(r)
+		}
 	}
 	return v
+}
+
+// randBudget is a random uncertainty budget, each optional member present or
+// not, for the encoder's equality with encoding/json.
+func randBudget(r *rand.Rand) *oapi.UncertaintyBudget {
+	u := &oapi.UncertaintyBudget{Approach: oapi.UncertaintyApproach(randString(r)), Combined: randFloat(r),
+		Coverage: oapi.CoverageRule(randString(r)), CoverageFactor: randFloat(r), EffectiveDf: randFloatPtr(r), Expanded: randFloat(r),
+		ExpandedText: randString(r), Level: randFloat(r), Notes: randStrings(r), RelativeCombined: randFloatPtr(r),
+		Unit: randString(r), Value: randFloat(r), ValueText: randString(r)}
+	if r.IntN(2) == 0 {
+		c := oapi.Cautions(randStrings(r))
+		u.Cautions = &c
+	}
+	if r.IntN(4) > 0 {
+		u.Terms = make([]oapi.BudgetTerm, r.IntN(4))
+		for i := range u.Terms {
+			u.Terms[i] = oapi.BudgetTerm{Contribution: randFloat(r), Df: randFloatPtr(r), Name: randString(r),
+				Share: randFloat(r), Source: randString(r)}
+			if r.IntN(2) == 0 {
+				g, d := randString(r), randString(r)
+				u.Terms[i].Group, u.Terms[i].Distribution = &g, &d
+				u.Terms[i].Coefficient, u.Terms[i].Relative = randFloatPtr(r), randFloatPtr(r)
+				u.Terms[i].StdUncertainty, u.Terms[i].Value = randFloatPtr(r), randFloatPtr(r)
+			}
+		}
+	}
+	if r.IntN(2) == 0 {
+		u.Conformity = &oapi.ConformityStatement{AcceptHigh: randFloatPtr(r), AcceptLow: randFloatPtr(r), Accepted: r.IntN(2) == 0,
+			Lower: randFloatPtr(r), Outcome: oapi.ConformityOutcome(randString(r)), Risk: randString(r),
+			Rule: oapi.DecisionRule(randString(r)), Statement: randString(r), Unit: randString(r), Upper: randFloatPtr(r)}
+	}
+	if r.IntN(3) == 0 {
+		u.TopDown = &oapi.TopDownEstimate{Combined: randFloat(r), Expanded: randFloat(r), ExpandedText: randString(r), Relative: randFloat(r)}
+	}
+	if r.IntN(3) == 0 {
+		u.MonteCarlo = &oapi.MonteCarloCheck{Agrees: r.IntN(2) == 0, Discarded: r.IntN(100), Draws: r.IntN(1 << 22),
+			GumHigh: randFloat(r), GumLow: randFloat(r), High: randFloat(r), Level: randFloat(r), Low: randFloat(r),
+			Mean: randFloat(r), Sd: randFloat(r), Seed: r.Int64(), ShortHigh: randFloat(r), ShortLow: randFloat(r), Tolerance: randFloat(r)}
+	}
+	return u
 }
 
 // TestPredictionJSONMatchesEncodingJSON compares appendPredictionJSON with

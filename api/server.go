@@ -58,6 +58,7 @@ type Server struct {
 	metrics *metrics
 	scopes  scopeTable
 	curves  *curveCache
+	budgets budgetCache   // each curve's budget context (lab.CurveBudgetContext)
 	limiter *tokenLimiter // nil when rate limiting is off
 	// authFailures counts failed authentications per client address; nil
 	// when that limit is off.

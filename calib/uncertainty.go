@@ -281,8 +281,16 @@ func (r *Report) CalibrationTerm(name string, responses []float64, dilution floa
 	if err != nil {
 		return UncertaintyTerm{}, Prediction{}, err
 	}
+	t, err := r.CalibrationTermOf(name, pr)
+	return t, pr, err
+}
+
+// CalibrationTermOf is CalibrationTerm for a prediction already made by
+// r.Predict (the prediction route and ingest have it), so the readings are
+// not inverted twice.
+func (r *Report) CalibrationTermOf(name string, pr Prediction) (UncertaintyTerm, error) {
 	if !pr.HasEstimate() {
-		return UncertaintyTerm{}, pr, inputErr("responses", "the curve gives no single concentration for these readings: %s", pr.Method)
+		return UncertaintyTerm{}, inputErr("responses", "the curve gives no single concentration for these readings: %s", pr.Method)
 	}
 	t := UncertaintyTerm{Name: name, Source: SourceCalibration, Kind: DistNormal, Value: pr.Concentration,
 		StdUncertainty: pr.StandardError, DF: float64(r.DF)}
@@ -300,7 +308,7 @@ func (r *Report) CalibrationTerm(name string, responses []float64, dilution floa
 		}
 		t.Curve = cd
 	}
-	return t, pr, nil
+	return t, nil
 }
 
 // checkedMeanSD is meanSD for caller input: it refuses fewer than two values
@@ -349,7 +357,6 @@ func (in BudgetInput) resolved() (BudgetInput, error) {
 		return in, inputErr("terms", "a budget needs at least one term")
 	}
 	terms := make([]UncertaintyTerm, len(in.Terms))
-	groups := map[string]int{}
 	for i, t := range in.Terms {
 		f := "terms[" + strconv.Itoa(i) + "]"
 		if t.Kind == "" {
@@ -388,12 +395,15 @@ func (in BudgetInput) resolved() (BudgetInput, error) {
 			if t.Curve != nil {
 				return in, inputErr(f+".group", "a calibration term with a curve cannot be in a correlation group")
 			}
-			if j, ok := groups[t.Group]; ok {
-				if terms[j].Kind != t.Kind || terms[j].DF != t.DF {
-					return in, inputErr(f+".group", "terms of group %q must share distribution and degrees of freedom", t.Group)
+			// Groups are few: the first term of the group is found by a scan
+			// of the terms before, which allocates nothing.
+			for j := range i {
+				if terms[j].Group == t.Group {
+					if terms[j].Kind != t.Kind || terms[j].DF != t.DF {
+						return in, inputErr(f+".group", "terms of group %q must share distribution and degrees of freedom", t.Group)
+					}
+					break
 				}
-			} else {
-				groups[t.Group] = i
 			}
 		}
 		terms[i] = t
@@ -450,8 +460,17 @@ func ComputeBudget(in BudgetInput) (Budget, error) {
 	}
 	b := Budget{Model: in.Model, Value: y, Coverage: in.Coverage, Level: in.Level, Cautions: Cautions(),
 		Terms: make([]TermResult, len(in.Terms))}
-	// Contributions, and the sum of contributions of each group.
-	groupSum := make(map[string]float64)
+	// groupSum returns the sum of the contributions of group g's terms (a
+	// scan: groups are few, and a map would be allocated per budget).
+	groupSum := func(g string) float64 {
+		var sum float64
+		for _, t := range b.Terms {
+			if t.Group == g {
+				sum += t.Contribution
+			}
+		}
+		return sum
+	}
 	for i, t := range in.Terms {
 		c := t.Sensitivity
 		if in.Model == ModelProduct {
@@ -461,11 +480,7 @@ func ComputeBudget(in BudgetInput) (Budget, error) {
 		if t.Value != 0 {
 			rel = t.StdUncertainty / math.Abs(t.Value)
 		}
-		tr := TermResult{UncertaintyTerm: t, Coefficient: c, Contribution: c * t.StdUncertainty, Relative: rel}
-		b.Terms[i] = tr
-		if t.Group != "" {
-			groupSum[t.Group] += tr.Contribution
-		}
+		b.Terms[i] = TermResult{UncertaintyTerm: t, Coefficient: c, Contribution: c * t.StdUncertainty, Relative: rel}
 	}
 	// ug returns the contribution of term i's component: its group's sum,
 	// or its own; first reports whether i is the first term of it.
@@ -474,7 +489,7 @@ func ComputeBudget(in BudgetInput) (Budget, error) {
 		if t.Group == "" {
 			return t.Contribution, true
 		}
-		return groupSum[t.Group], firstOfGroup(b.Terms, i)
+		return groupSum(t.Group), firstOfGroup(b.Terms, i)
 	}
 	var uc2 float64
 	for i := range b.Terms {

@@ -191,6 +191,10 @@ func (s *Service) Exclude(ctx context.Context, p Principal, c *Curve, points []E
 		}
 		rep = calib.FailedReport(fitPts, opts, err)
 	}
+	bc, err := s.budgetContext(ctx, m, nil, c.RunID, c.Analyte)
+	if err != nil {
+		return "", err
+	}
 	return s.store.CreateRevision(ctx, RevisionInput{OriginalID: c.ID, Report: rep, Excluded: excluded,
-		Reason: reason, RangeReason: rangeReason, Actor: p.Actor()})
+		Reason: reason, RangeReason: rangeReason, Actor: p.Actor(), Budget: bc})
 }

@@ -23,6 +23,9 @@ type Analyte struct {
 	// Model, when set, fits this analyte with another model than the
 	// method's (for instance calib.AverageRF); "" takes the method's.
 	Model calib.Model `json:"model,omitempty"`
+	// Uncertainty is how the analyte's results state their uncertainty
+	// budget and conformity (lab/budget.go); nil: no budget.
+	Uncertainty *UncertaintySpec `json:"uncertainty,omitempty"`
 }
 
 // MethodInput is a method as an administrator defines it. Acceptance must be
@@ -143,6 +146,9 @@ func CheckMethod(in MethodInput) error {
 			if err := checkModelWeighting(fmt.Sprintf("/analytes/%d/model", i), a.Model, in.Weighting); err != nil {
 				return err
 			}
+		}
+		if err := checkUncertaintySpec(fmt.Sprintf("/analytes/%d/uncertainty", i), a.Uncertainty); err != nil {
+			return err
 		}
 	}
 	if err := in.QC.Check(); err != nil {

@@ -143,22 +143,22 @@ func Outcome(c *CurveInput, s *Sample, q *Quantity) (SampleOutcome, error) {
 // refuseLateISSamples refuses samples posted after their run for an analyte
 // quantified against an internal standard: the run's calibrator IS
 // responses are not kept beside its curves yet, so such samples are posted
-// with their run.
-func (s *Service) refuseLateISSamples(ctx context.Context, runID string, samples []Sample) error {
+// with their run. It returns the run and its method revision.
+func (s *Service) refuseLateISSamples(ctx context.Context, runID string, samples []Sample) (*Run, *Method, error) {
 	run, err := s.GetRun(ctx, runID)
 	if err != nil {
-		return err
+		return nil, nil, err
 	}
 	m, err := s.GetMethodRevision(ctx, run.Method, run.MethodRevision)
 	if err != nil {
-		return err
+		return nil, nil, err
 	}
 	for i, sm := range samples {
 		if a, ok := m.Analyte(sm.Analyte); ok && a.Quant.InternalStandard != "" {
-			return FieldError(Pointer("samples", i, "analyte"), "%s is quantified against the internal standard %s: post its samples with their run", a.Name, a.Quant.InternalStandard)
+			return nil, nil, FieldError(Pointer("samples", i, "analyte"), "%s is quantified against the internal standard %s: post its samples with their run", a.Name, a.Quant.InternalStandard)
 		}
 	}
-	return nil
+	return run, m, nil
 }
 
 // checkPrep refuses a sample preparation that cannot make a reported value;

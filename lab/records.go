@@ -95,6 +95,9 @@ type RevisionInput struct {
 	Reason      string
 	RangeReason string // "" when none was given
 	Actor       string
+	// Budget is the budget context of the curve's analyte (the original's
+	// method revision and run): the revision's results carry budgets.
+	Budget BudgetContext
 }
 
 // Exclusion records why a revision left readings out.
@@ -148,6 +151,7 @@ type ResultEvent struct {
 	IntervalMethod  string
 	Flags           []string
 	Reported        []byte // the reported value's JSON; nil where the method reports none
+	Uncertainty     []byte // the budget's JSON (BudgetRecord); nil where the method asks for none
 }
 
 // FeedPage is one page of the change feed.
@@ -189,6 +193,9 @@ type Result struct {
 	// when the analyte has no reporting rules or internal standard.
 	Reported, ISCheck []byte
 	Sequence          []byte // SequenceRecord JSON; nil without a sequence
+	// Uncertainty is the JSON of the result's BudgetRecord; nil when its
+	// method asks for no budget.
+	Uncertainty []byte
 }
 
 // RunWriteStats counts CreateRun's writes since the service started: the

@@ -80,6 +80,9 @@ type CurveInput struct {
 	Rules        Analyte
 	CalibratorIS []float64
 	Highest      float64
+	// Standards is the standards' term of the uncertainty budget, from the
+	// standard materials the run named for the analyte; nil when none.
+	Standards *StandardsTerm
 }
 
 // RunCreated is what CreateRun stored; it is also the response body kept for

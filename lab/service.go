@@ -70,7 +70,9 @@ type Writer interface {
 	ReviewCurve(ctx context.Context, id, decision, reason, actor string) (*Review, error)
 	CreateVerification(ctx context.Context, in VerificationInput) (*Verification, error)
 	CreateRevision(ctx context.Context, in RevisionInput) (string, error)
-	AddSamples(ctx context.Context, runID string, samples []Sample, actor string) ([]Result, error)
+	// AddSamples stores samples posted after their run with their results;
+	// budgets holds each analyte's budget context (absent: no budget).
+	AddSamples(ctx context.Context, runID string, samples []Sample, budgets map[string]BudgetContext, actor string) ([]Result, error)
 	CreateSession(ctx context.Context, tokenSecret string, ttl time.Duration) (string, Principal, error)
 	DeleteSession(ctx context.Context, secret string) error
 }
@@ -191,7 +193,12 @@ func (s *Service) Verify(ctx context.Context, p Principal, in VerificationInput)
 // AddSamples quantifies samples posted after their run against its curves
 // on behalf of p.
 func (s *Service) AddSamples(ctx context.Context, p Principal, runID string, samples []Sample) ([]Result, error) {
-	if err := s.refuseLateISSamples(ctx, runID, samples); err != nil {
+	run, m, err := s.refuseLateISSamples(ctx, runID, samples)
+	if err != nil {
+		return nil, err
+	}
+	budgets, err := s.runBudgetContexts(ctx, m, run, samples)
+	if err != nil {
 		return nil, err
 	}
 	received := s.now().UTC()
@@ -205,7 +212,7 @@ func (s *Service) AddSamples(ctx context.Context, p Principal, runID string, sam
 			return nil, err
 		}
 	}
-	return s.store.AddSamples(ctx, runID, samples, p.Actor())
+	return s.store.AddSamples(ctx, runID, samples, budgets, p.Actor())
 }
 
 // SignIn exchanges a token's secret for a session of the QA pages.

@@ -296,11 +296,12 @@ func addStandardsChecks(m *Method, in *RunInput, lineage map[string]*Material, c
 		byAnalyte[mat.Analyte] = append(byAnalyte[mat.Analyte], code)
 	}
 	advisory := m.ExpiredStandardsAdvisory()
-	for _, c := range curves {
+	for i, c := range curves {
 		codes := byAnalyte[c.Analyte]
 		if len(codes) == 0 {
 			continue
 		}
+		curves[i].Standards = StandardsTermOf(c.Analyte, codes, lineage)
 		ch := standardsCheck(codes, lineage, in.AcquiredAt, advisory)
 		r := c.Report
 		r.Checks = append(r.Checks, ch)

@@ -99,7 +99,7 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 		}); err != nil {
 			return err
 		}
-		pending, err := revisionResults(ctx, tx, runID, analyte, unit, &pc)
+		pending, err := revisionResults(ctx, tx, runID, analyte, unit, &pc, in.Budget)
 		if err != nil {
 			return err
 		}
@@ -120,7 +120,7 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 
 // revisionResults quantifies every sample of analyte in run runID against a
 // new revision.
-func revisionResults(ctx context.Context, tx pgx.Tx, runID, analyte, unit string, pc *preparedCurve) ([]pendingResult, error) {
+func revisionResults(ctx context.Context, tx pgx.Tx, runID, analyte, unit string, pc *preparedCurve, bc lab.BudgetContext) ([]pendingResult, error) {
 	rows, err := tx.Query(ctx, `
 SELECT s.position, s.responses, s.dilution, coalesce(s.acquired_at, r.acquired_at)
 FROM run_samples s JOIN runs r ON r.id = s.run_id
@@ -138,8 +138,12 @@ WHERE s.run_id = $1 AND s.analyte = $2 ORDER BY s.position`, runID, analyte)
 	)
 	_, err = pgx.ForEachRow(rows, []any{&position, &responses, &dilution, &at}, func() error {
 		state, reason := lab.ReleaseOf(f, at)
+		budget, err := lab.BudgetJSON(pc.in.Report, responses, dilution, bc)
+		if err != nil {
+			return err
+		}
 		out = append(out, pendingResult{position: position, curveID: pc.id, unit: unit, acquiredAt: at,
-			q: lab.Quantify(pc.in.Report, responses, dilution), state: state, reason: reason})
+			q: lab.Quantify(pc.in.Report, responses, dilution), state: state, reason: reason, uncertainty: budget})
 		return nil
 	})
 	if err != nil {

@@ -113,7 +113,7 @@ RETURNING `+methodColumns,
 func sameMethod(m *lab.Method, in lab.MethodInput) bool {
 	return m.Model == in.Model && m.Weighting == in.Weighting && m.Confidence == in.Confidence &&
 		m.Description == in.Description &&
-		slices.Equal(m.Analytes, in.Analytes) && reflect.DeepEqual(m.Acceptance, in.Acceptance) &&
+		reflect.DeepEqual(m.Analytes, in.Analytes) && reflect.DeepEqual(m.Acceptance, in.Acceptance) &&
 		m.QC.Equal(in.QC) && m.Weights == in.Weights && m.Standards == in.Standards &&
 		m.Curve.Equal(in.Curve)
 }

@@ -117,7 +117,7 @@ func sqlResultFeed(limit int) string {
 SELECT e.seq, e.at, e.kind, e.cause, e.release_state, coalesce(e.previous_state, ''), e.reason,
        r.id, r.sample_id, r.run_id, r.curve_id, r.analyte, r.unit, r.concentration,
        r.acquired_at, r.dilution, r.standard_error, r.interval_low, r.interval_high, r.interval_level,
-       r.interval_bounded, r.interval_method, r.flags, r.reported
+       r.interval_bounded, r.interval_method, r.flags, r.reported, r.uncertainty
 FROM result_events e JOIN sample_results r ON r.id = e.result_id
 WHERE e.seq > $1
 ORDER BY e.seq
@@ -149,7 +149,7 @@ func (db *DB) ResultFeed(ctx context.Context, since string, limit int) (*lab.Fee
 		err := row.Scan(&e.Seq, &e.At, &e.Kind, &e.Cause, &e.State, &e.Previous, &e.Reason,
 			&e.ResultID, &e.SampleID, &e.RunID, &e.CurveID, &e.Analyte, &e.Unit, &e.Concentration,
 			&e.AcquiredAt, &e.Dilution, &e.StandardError, &e.IntervalLow, &e.IntervalHigh, &e.IntervalLevel,
-			&e.IntervalBounded, &e.IntervalMethod, &e.Flags, &e.Reported)
+			&e.IntervalBounded, &e.IntervalMethod, &e.Flags, &e.Reported, &e.Uncertainty)
 		return e, err
 	})
 	if err != nil {

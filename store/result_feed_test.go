@@ -118,7 +118,7 @@ func TestResultFeedConcurrentWriters(t *testing.T) {
 					{ID: fmt.Sprintf("W%d-R%d-a", w, r), Analyte: "nitrate", Responses: []float64{4.5}, AcquiredAt: &at},
 					{ID: fmt.Sprintf("W%d-R%d-b", w, r), Analyte: "nitrite", Responses: []float64{1.2, 1.3}, Dilution: 5, AcquiredAt: &at},
 				}
-				if _, err := db.AddSamples(ctx, run, samples, "token:instrument"); err != nil {
+				if _, err := db.AddSamples(ctx, run, samples, nil, "token:instrument"); err != nil {
 					t.Errorf("AddSamples: %v", err)
 				}
 			}
@@ -220,7 +220,7 @@ FROM sample_results ORDER BY id LIMIT 1 RETURNING seq`).Scan(&seqA)
 	bDone := make(chan error, 1)
 	go func() {
 		at := baseTime.Add(time.Hour)
-		_, err := db.AddSamples(ctx, created.ID, []lab.Sample{{ID: "WS-0100", Analyte: "nitrate", Responses: []float64{3}, AcquiredAt: &at}}, "token:instrument")
+		_, err := db.AddSamples(ctx, created.ID, []lab.Sample{{ID: "WS-0100", Analyte: "nitrate", Responses: []float64{3}, AcquiredAt: &at}}, nil, "token:instrument")
 		bDone <- err
 	}()
 	waiting := false

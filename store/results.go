@@ -25,14 +25,15 @@ type pendingResult struct {
 	// (JSON), nil when its analyte has no such rules.
 	reported, isCheck []byte
 	sequence          []byte // its place in the run's sequence (JSON), nil without one
+	uncertainty       []byte // its uncertainty budget (lab.BudgetRecord JSON), nil without one
 }
 
 const sqlInsertResult = `
 INSERT INTO sample_results (run_sample_id, curve_id, run_id, sample_id, analyte, unit, acquired_at, responses, dilution,
                             mean_response, concentration, standard_error, interval_low, interval_high, interval_level,
-                            interval_bounded, interval_method, flags, release_state, release_reason, created_by, reported, is_check, sequence)
+                            interval_bounded, interval_method, flags, release_state, release_reason, created_by, reported, is_check, sequence, uncertainty)
 SELECT s.id, $3, s.run_id, s.sample_id, s.analyte, $4, $5, s.responses, s.dilution,
-       $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19, $20
+       $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19, $20, $21
 FROM run_samples s WHERE s.run_id = $1 AND s.position = $2
 RETURNING id`
 
@@ -46,7 +47,7 @@ func insertResults(ctx context.Context, tx pgx.Tx, runID string, rs []pendingRes
 	for _, r := range rs {
 		q := r.q
 		b.Queue(sqlInsertResult, runID, r.position, r.curveID, r.unit, r.acquiredAt, q.Mean, q.Conc, q.SE,
-			q.Low, q.High, q.Level, q.Bounded, q.Method, q.Flags, r.state, r.reason, actor, r.reported, r.isCheck, r.sequence)
+			q.Low, q.High, q.Level, q.Bounded, q.Method, q.Flags, r.state, r.reason, actor, r.reported, r.isCheck, r.sequence, r.uncertainty)
 	}
 	br := tx.SendBatch(ctx, b)
 	for _, r := range rs {
@@ -65,14 +66,14 @@ func insertResults(ctx context.Context, tx pgx.Tx, runID string, rs []pendingRes
 
 const resultColumns = `id, curve_id, run_id, sample_id, analyte, unit, acquired_at, responses, dilution, mean_response,
 concentration, standard_error, interval_low, interval_high, interval_level, interval_bounded, interval_method, flags,
-release_state, release_reason, state_changed_at, created_at, created_by, reported, is_check, sequence`
+release_state, release_reason, state_changed_at, created_at, created_by, reported, is_check, sequence, uncertainty`
 
 func scanResult(row pgx.CollectableRow) (lab.Result, error) {
 	var r lab.Result
 	err := row.Scan(&r.ID, &r.CurveID, &r.RunID, &r.SampleID, &r.Analyte, &r.Unit, &r.AcquiredAt, &r.Responses,
 		&r.Dilution, &r.MeanResponse, &r.Concentration, &r.StandardError, &r.IntervalLow, &r.IntervalHigh,
 		&r.IntervalLevel, &r.IntervalBounded, &r.IntervalMethod, &r.Flags, &r.ReleaseState, &r.ReleaseReason,
-		&r.StateChangedAt, &r.CreatedAt, &r.CreatedBy, &r.Reported, &r.ISCheck, &r.Sequence)
+		&r.StateChangedAt, &r.CreatedAt, &r.CreatedBy, &r.Reported, &r.ISCheck, &r.Sequence, &r.Uncertainty)
 	return r, err
 }
 

@@ -217,11 +217,11 @@ FROM unnest($1::text[], $2::text[], $3::text[], $4::text[], $5::jsonb[])
      WITH ORDINALITY AS u(actor, action, entity_type, entity_id, detail, n)
 ORDER BY u.n`
 	// sqlGroupInsertResult is sqlInsertResult with its created event
-	// ($18 the cause), for a group that holds the feed lock already.
+	// ($22 the cause), for a group that holds the feed lock already.
 	sqlGroupInsertResult = `
 WITH r AS (` + sqlInsertResult + `, release_state, release_reason)
 INSERT INTO result_events (result_id, kind, cause, release_state, previous_state, reason)
-SELECT r.id, '` + lab.EventCreated + `', $21, r.release_state, NULL, r.release_reason FROM r`
+SELECT r.id, '` + lab.EventCreated + `', $22, r.release_state, NULL, r.release_reason FROM r`
 )
 
 // runRows queues the rows of every run of group, table by table: with
@@ -312,7 +312,7 @@ func runRows(group []*runWrite, claims bool) (*pgx.Batch, error) {
 		for _, p := range pending {
 			q := p.q
 			results.Queue(sqlGroupInsertResult, w.runID, p.position, p.curveID, p.unit, p.acquiredAt, q.Mean, q.Conc, q.SE,
-				q.Low, q.High, q.Level, q.Bounded, q.Method, q.Flags, p.state, p.reason, in.Actor, p.reported, p.isCheck, p.sequence, lab.CauseRunCreate)
+				q.Low, q.High, q.Level, q.Bounded, q.Method, q.Flags, p.state, p.reason, in.Actor, p.reported, p.isCheck, p.sequence, p.uncertainty, lab.CauseRunCreate)
 		}
 	}
 	if claims && len(kKeys) > 0 {

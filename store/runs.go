@@ -324,6 +324,10 @@ func runResults(in *lab.RunInput, curves []preparedCurve) ([]pendingResult, erro
 		if err != nil {
 			return nil, err
 		}
+		budget, err := lab.ResultBudgetJSON(&c.in, lab.QuantResponses(&c.in, &s), s.Dilution)
+		if err != nil {
+			return nil, err
+		}
 		so := seqs[s.Analyte][s.ID]
 		switch {
 		case o.Withheld != "":
@@ -333,7 +337,7 @@ func runResults(in *lab.RunInput, curves []preparedCurve) ([]pendingResult, erro
 			q.Flags = append(q.Flags, lab.FlagSequenceWithheld)
 		}
 		out = append(out, pendingResult{position: i, curveID: c.id, unit: c.in.Unit, acquiredAt: at,
-			q: q, state: state, reason: reason, reported: o.Reported, isCheck: o.ISCheck, sequence: so.Record})
+			q: q, state: state, reason: reason, reported: o.Reported, isCheck: o.ISCheck, sequence: so.Record, uncertainty: budget})
 	}
 	return out, nil
 }

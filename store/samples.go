@@ -65,7 +65,7 @@ WHERE c.run_id = $1 AND NOT EXISTS (SELECT 1 FROM exclusions e WHERE e.revision_
 // naming the field): the run has a curve for the analyte; a sample id
 // appears once per analyte in the run (with the earlier samples); a sample
 // was not acquired before the run's standards.
-func (db *DB) AddSamples(ctx context.Context, runID string, samples []lab.Sample, actor string) ([]lab.Result, error) {
+func (db *DB) AddSamples(ctx context.Context, runID string, samples []lab.Sample, budgets map[string]lab.BudgetContext, actor string) ([]lab.Result, error) {
 	runID, err := parseID("run", runID)
 	if err != nil {
 		return nil, err
@@ -138,8 +138,12 @@ FROM runs r WHERE r.id = $1`, runID).Scan(&runAt, &next)
 			}
 			state, reason := lab.ReleaseOf(f, *s.AcquiredAt)
 			b.Queue(sqlInsertSample, runID, next+i, s.ID, s.Analyte, s.Responses, s.Dilution, s.AcquiredAt)
+			budget, err := lab.BudgetJSON(c.report, s.Responses, s.Dilution, budgets[s.Analyte])
+			if err != nil {
+				return err
+			}
 			pending = append(pending, pendingResult{position: next + i, curveID: c.id, unit: c.unit, acquiredAt: *s.AcquiredAt,
-				q: lab.Quantify(c.report, s.Responses, s.Dilution), state: state, reason: reason})
+				q: lab.Quantify(c.report, s.Responses, s.Dilution), state: state, reason: reason, uncertainty: budget})
 		}
 		if err := tx.SendBatch(ctx, b).Close(); err != nil {
 			if pgCode(err) == codeUniqueViolation {

@@ -40,6 +40,33 @@ func (e AnalyteQuantBlankSubtraction) Valid() bool {
 	}
 }
 
+// Defines values for BudgetTermKind.
+const (
+	BudgetTermCalibration   BudgetTermKind = "calibration"
+	BudgetTermPreparation   BudgetTermKind = "preparation"
+	BudgetTermRecovery      BudgetTermKind = "recovery"
+	BudgetTermRepeatability BudgetTermKind = "repeatability"
+	BudgetTermStandards     BudgetTermKind = "standards"
+)
+
+// Valid indicates whether the value is a known member of the BudgetTermKind enum.
+func (e BudgetTermKind) Valid() bool {
+	switch e {
+	case BudgetTermCalibration:
+		return true
+	case BudgetTermPreparation:
+		return true
+	case BudgetTermRecovery:
+		return true
+	case BudgetTermRepeatability:
+		return true
+	case BudgetTermStandards:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for CheckName.
 const (
 	CheckBackCalculation       CheckName = "back_calculation"
@@ -100,6 +127,30 @@ func (e CheckName) Valid() bool {
 	}
 }
 
+// Defines values for ConformityOutcome.
+const (
+	OutcomeConditionalFail ConformityOutcome = "conditional fail"
+	OutcomeConditionalPass ConformityOutcome = "conditional pass"
+	OutcomeFail            ConformityOutcome = "fail"
+	OutcomePass            ConformityOutcome = "pass"
+)
+
+// Valid indicates whether the value is a known member of the ConformityOutcome enum.
+func (e ConformityOutcome) Valid() bool {
+	switch e {
+	case OutcomeConditionalFail:
+		return true
+	case OutcomeConditionalPass:
+		return true
+	case OutcomeFail:
+		return true
+	case OutcomePass:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for ControlRule.
 const (
 	Rule10X ControlRule = "10x"
@@ -124,6 +175,24 @@ func (e ControlRule) Valid() bool {
 	case Rule41S:
 		return true
 	case RuleR4S:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for CoverageRule.
+const (
+	CoverageK2       CoverageRule = "k2"
+	CoverageStudentT CoverageRule = "student_t"
+)
+
+// Valid indicates whether the value is a known member of the CoverageRule enum.
+func (e CoverageRule) Valid() bool {
+	switch e {
+	case CoverageK2:
+		return true
+	case CoverageStudentT:
 		return true
 	default:
 		return false
@@ -169,6 +238,24 @@ func (e CurveStatus) Valid() bool {
 	case CurveStatusPendingReview:
 		return true
 	case CurveStatusRejected:
+		return true
+	default:
+		return false
+	}
+}
+
+// Defines values for DecisionRule.
+const (
+	RuleGuardBandU       DecisionRule = "guard_band_u"
+	RuleSimpleAcceptance DecisionRule = "simple_acceptance"
+)
+
+// Valid indicates whether the value is a known member of the DecisionRule enum.
+func (e DecisionRule) Valid() bool {
+	switch e {
+	case RuleGuardBandU:
+		return true
+	case RuleSimpleAcceptance:
 		return true
 	default:
 		return false
@@ -874,6 +961,27 @@ func (e TrendParameter) Valid() bool {
 	}
 }
 
+// Defines values for UncertaintyApproach.
+const (
+	ApproachBottomUp UncertaintyApproach = "bottom_up"
+	ApproachLarger   UncertaintyApproach = "larger"
+	ApproachTopDown  UncertaintyApproach = "top_down"
+)
+
+// Valid indicates whether the value is a known member of the UncertaintyApproach enum.
+func (e UncertaintyApproach) Valid() bool {
+	switch e {
+	case ApproachBottomUp:
+		return true
+	case ApproachLarger:
+		return true
+	case ApproachTopDown:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for Verdict.
 const (
 	VerdictFail Verdict = "fail"
@@ -1035,6 +1143,19 @@ type Analyte struct {
 	// first; a qualified person reviews every result.
 	Quant *AnalyteQuant `json:"quant,omitempty"`
 
+	// Uncertainty How the analyte's results state their measurement uncertainty (GUM, JCGM 100) and their
+	// conformity with specification limits (ISO/IEC 17025:2017 §7.8.6). The budget is a product
+	// model: x̂0 with its s(x̂0) from the curve (linear and non-linear), times factors of value 1
+	// whose relative standard uncertainties the method chooses in `terms`: `standards` (the
+	// largest relative uncertainty of the standard materials the run named for the analyte,
+	// certificate and preparation, fully correlated with its stock), `preparation` (each
+	// volume's tolerance a as a rectangular a/(√3·V)), `repeatability` (the sample's readings
+	// inverted one by one, (s/x̄)/√m, ν = m − 1) and `recovery` (u(R̄)/R̄, not corrected).
+	// u_c by the law of propagation, ν_eff by Welch–Satterthwaite, k = t(0.975, ν_eff) or 2,
+	// U rounded to two significant figures. The laboratory's accreditation, regulator and SOP
+	// come first; a qualified person reviews every result.
+	Uncertainty *UncertaintySpec `json:"uncertainty,omitempty"`
+
 	// Unit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
 	Unit Unit `json:"unit"`
 }
@@ -1094,6 +1215,27 @@ type AuditEvent struct {
 type AuditLog struct {
 	Events []AuditEvent `json:"events"`
 }
+
+// BudgetTerm One term of a budget with its contribution c·u (in the result's unit) and its share of u_c²;
+// `df` null when infinite. A stored result's budget also states the term's `value`,
+// `std_uncertainty` (relative for a factor of value 1), `relative`, `coefficient` c and
+// `distribution`; a prediction answer leaves them out to stay small (one budget per sample).
+type BudgetTerm struct {
+	Coefficient    *float64 `json:"coefficient,omitempty"`
+	Contribution   float64  `json:"contribution"`
+	Df             *float64 `json:"df"`
+	Distribution   *string  `json:"distribution,omitempty"`
+	Group          *string  `json:"group,omitempty"`
+	Name           string   `json:"name"`
+	Relative       *float64 `json:"relative,omitempty"`
+	Share          float64  `json:"share"`
+	Source         string   `json:"source"`
+	StdUncertainty *float64 `json:"std_uncertainty,omitempty"`
+	Value          *float64 `json:"value,omitempty"`
+}
+
+// BudgetTermKind defines model for BudgetTermKind.
+type BudgetTermKind string
 
 // Cautions What the result is and is not: acceptance against configured default
 // criteria from published guidance; the laboratory's accreditation,
@@ -1163,6 +1305,32 @@ type Concentration = float64
 // Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
 type Confidence = float64
 
+// ConformityOutcome defines model for ConformityOutcome.
+type ConformityOutcome string
+
+// ConformityStatement The statement of conformity with the method's limits under its decision rule, with the risk.
+type ConformityStatement struct {
+	// AcceptHigh The upper acceptance limit applied (the upper limit − w); null without one.
+	AcceptHigh *float64 `json:"accept_high"`
+
+	// AcceptLow The lower acceptance limit applied (the lower limit + w); null without one.
+	AcceptLow *float64          `json:"accept_low"`
+	Accepted  bool              `json:"accepted"`
+	Lower     *float64          `json:"lower"`
+	Outcome   ConformityOutcome `json:"outcome"`
+
+	// Risk What the outcome means for the risk of a wrong decision.
+	Risk string `json:"risk"`
+
+	// Rule `simple_acceptance`: the result against the limit (risk up to 50 % at the limit); `guard_band_u`: acceptance limits moved inside by w = U (ILAC G8:09/2019).
+	Rule DecisionRule `json:"rule"`
+
+	// Statement The result with its U, the limits, the rule and the outcome in words (the risk is in `risk`).
+	Statement string   `json:"statement"`
+	Unit      string   `json:"unit"`
+	Upper     *float64 `json:"upper"`
+}
+
 // ControlLimits Shewhart control limits (ISO 7870-2); null without a baseline.
 type ControlLimits struct {
 	ActionHigh  float64 `json:"action_high"`
@@ -1178,6 +1346,9 @@ type ControlLimits struct {
 // above +2 SD and the other below −2 SD; `4-1s` four consecutive beyond
 // the same 1 SD limit; `10x` ten consecutive on the same side of the mean.
 type ControlRule string
+
+// CoverageRule `student_t`: k = t((1+p)/2, ν_eff) (the default); `k2`: k = 2.
+type CoverageRule string
 
 // Cursor Opaque keyset cursor (base64url without padding).
 type Cursor = string
@@ -1553,6 +1724,9 @@ type CurveSummary struct {
 	// weights each calibrator by its own level's SD.
 	Weighting Weighting `json:"weighting"`
 }
+
+// DecisionRule `simple_acceptance`: the result against the limit (risk up to 50 % at the limit); `guard_band_u`: acceptance limits moved inside by w = U (ILAC G8:09/2019).
+type DecisionRule string
 
 // Dilution Dilution factor applied after inversion (reported = curve value × dilution); 1 when absent.
 type Dilution = float64
@@ -1964,6 +2138,32 @@ type MethodRequestSignatures string
 // The RFs are in the curve's `response_factors`.
 type Model string
 
+// MonteCarloCheck The Monte Carlo check (JCGM 101) of the bottom-up budget, on request only.
+type MonteCarloCheck struct {
+	Agrees    bool    `json:"agrees"`
+	Discarded int     `json:"discarded"`
+	Draws     int     `json:"draws"`
+	GumHigh   float64 `json:"gum_high"`
+	GumLow    float64 `json:"gum_low"`
+	High      float64 `json:"high"`
+	Level     float64 `json:"level"`
+	Low       float64 `json:"low"`
+	Mean      float64 `json:"mean"`
+	Sd        float64 `json:"sd"`
+	Seed      int64   `json:"seed"`
+	ShortHigh float64 `json:"short_high"`
+	ShortLow  float64 `json:"short_low"`
+
+	// Tolerance The numerical tolerance δ of JCGM 101 §8.2 (two significant digits of u_c).
+	Tolerance float64 `json:"tolerance"`
+}
+
+// MonteCarloRequest Asks for a Monte Carlo check of each budget (JCGM 101), seeded; draws 0 or absent take at least 10⁵.
+type MonteCarloRequest struct {
+	Draws *int  `json:"draws,omitempty"`
+	Seed  int64 `json:"seed"`
+}
+
 // NextCursor Pass as `cursor`, with the same filters, for the next page; null when
 // the list has no further page.
 type NextCursor = string
@@ -2029,7 +2229,10 @@ type PredictionFlag string
 // PredictionRequest defines model for PredictionRequest.
 type PredictionRequest struct {
 	// Confidence Two-sided confidence level of intervals, 0.5 to 0.999.
-	Confidence *Confidence        `json:"confidence,omitempty"`
+	Confidence *Confidence `json:"confidence,omitempty"`
+
+	// MonteCarlo Asks for a Monte Carlo check of each budget (JCGM 101), seeded; draws 0 or absent take at least 10⁵.
+	MonteCarlo *MonteCarloRequest `json:"monte_carlo,omitempty"`
 	Samples    []PredictionSample `json:"samples"`
 }
 
@@ -2078,6 +2281,17 @@ type PredictionResult struct {
 
 	// StandardError Approximate standard error of the concentration, after dilution; null with no estimate.
 	StandardError *float64 `json:"standard_error"`
+
+	// Uncertainty A result's uncertainty budget (GUM, JCGM 100) and, with the method's limits, its
+	// statement of conformity. `value` and `expanded` are y and U; `value_text` and
+	// `expanded_text` are them rounded to two significant figures of U. Each term has its
+	// contribution c·u and its share of u_c² (shares add to 1). `effective_df` and a term's `df`
+	// are null when infinite. Absent where the method asks for no budget, and for a result
+	// without a single non-zero concentration (its flags say why). `cautions` is on a
+	// stored result's budget; a prediction answer states them once, beside its results. The
+	// laboratory's accreditation, regulator and SOP come first; a qualified person reviews
+	// every result.
+	Uncertainty *UncertaintyBudget `json:"uncertainty,omitempty"`
 }
 
 // PredictionSample defines model for PredictionSample.
@@ -2305,7 +2519,18 @@ type ResultEvent struct {
 	// Seq Position in the feed; increases with every event.
 	Seq           int64    `json:"seq"`
 	StandardError *float64 `json:"standard_error"`
-	Unit          string   `json:"unit"`
+
+	// Uncertainty A result's uncertainty budget (GUM, JCGM 100) and, with the method's limits, its
+	// statement of conformity. `value` and `expanded` are y and U; `value_text` and
+	// `expanded_text` are them rounded to two significant figures of U. Each term has its
+	// contribution c·u and its share of u_c² (shares add to 1). `effective_df` and a term's `df`
+	// are null when infinite. Absent where the method asks for no budget, and for a result
+	// without a single non-zero concentration (its flags say why). `cautions` is on a
+	// stored result's budget; a prediction answer states them once, beside its results. The
+	// laboratory's accreditation, regulator and SOP come first; a qualified person reviews
+	// every result.
+	Uncertainty *UncertaintyBudget `json:"uncertainty,omitempty"`
+	Unit        string             `json:"unit"`
 }
 
 // ResultEventKind defines model for ResultEvent.Kind.
@@ -2617,6 +2842,17 @@ type SampleResult struct {
 	// StateChangedAt When the release state or its reason last changed.
 	StateChangedAt Timestamp `json:"state_changed_at"`
 
+	// Uncertainty A result's uncertainty budget (GUM, JCGM 100) and, with the method's limits, its
+	// statement of conformity. `value` and `expanded` are y and U; `value_text` and
+	// `expanded_text` are them rounded to two significant figures of U. Each term has its
+	// contribution c·u and its share of u_c² (shares add to 1). `effective_df` and a term's `df`
+	// are null when infinite. Absent where the method asks for no budget, and for a result
+	// without a single non-zero concentration (its flags say why). `cautions` is on a
+	// stored result's budget; a prediction answer states them once, beside its results. The
+	// laboratory's accreditation, regulator and SOP come first; a qualified person reviews
+	// every result.
+	Uncertainty *UncertaintyBudget `json:"uncertainty,omitempty"`
+
 	// Unit UCUM code of the analyte's concentration unit, which `concentration`, `standard_error` and `interval` are in.
 	Unit string `json:"unit"`
 }
@@ -2789,6 +3025,15 @@ type SignatureRequestMeaning string
 // SignatureRequestSubject What is signed (default `curve`). `exclusion`: the exclusion of standards that made this revision curve, signed by an analyst with meaning `responsibility`; the approver of the revision must then be another person. `release`: the results of this approved curve as they stand (value, flags, release state of each), signed by a qa-approver with meaning `responsibility`, who did not post the run or make the exclusion.
 type SignatureRequestSubject string
 
+// SpecLimits Specification limits in the analyte's unit, at least one, and the decision rule.
+type SpecLimits struct {
+	Lower *float64 `json:"lower,omitempty"`
+
+	// Rule `simple_acceptance`: the result against the limit (risk up to 50 % at the limit); `guard_band_u`: acceptance limits moved inside by w = U (ILAC G8:09/2019).
+	Rule  DecisionRule `json:"rule"`
+	Upper *float64     `json:"upper,omitempty"`
+}
+
 // Standard defines model for Standard.
 type Standard struct {
 	Analyte       string    `json:"analyte"`
@@ -2917,6 +3162,14 @@ type TokenRequest struct {
 	Scopes []Scope `json:"scopes"`
 }
 
+// TopDownEstimate The top-down estimate the approach weighed (relative u, k = 2).
+type TopDownEstimate struct {
+	Combined     float64 `json:"combined"`
+	Expanded     float64 `json:"expanded"`
+	ExpandedText string  `json:"expanded_text"`
+	Relative     float64 `json:"relative"`
+}
+
 // Trend defines model for Trend.
 type Trend struct {
 	Analyte  string        `json:"analyte"`
@@ -2984,6 +3237,94 @@ type TrendPoint struct {
 
 // UUID defines model for UUID.
 type UUID = openapi_types.UUID
+
+// UncertaintyApproach `bottom_up` (the default): the budget; `top_down`: the lab's top-down estimate; `larger`: the larger U of the two.
+type UncertaintyApproach string
+
+// UncertaintyBudget A result's uncertainty budget (GUM, JCGM 100) and, with the method's limits, its
+// statement of conformity. `value` and `expanded` are y and U; `value_text` and
+// `expanded_text` are them rounded to two significant figures of U. Each term has its
+// contribution c·u and its share of u_c² (shares add to 1). `effective_df` and a term's `df`
+// are null when infinite. Absent where the method asks for no budget, and for a result
+// without a single non-zero concentration (its flags say why). `cautions` is on a
+// stored result's budget; a prediction answer states them once, beside its results. The
+// laboratory's accreditation, regulator and SOP come first; a qualified person reviews
+// every result.
+type UncertaintyBudget struct {
+	// Approach `bottom_up` (the default): the budget; `top_down`: the lab's top-down estimate; `larger`: the larger U of the two.
+	Approach UncertaintyApproach `json:"approach"`
+
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions *Cautions `json:"cautions,omitempty"`
+
+	// Combined u_c
+	Combined float64 `json:"combined"`
+
+	// Conformity The statement of conformity with the method's limits under its decision rule, with the risk.
+	Conformity *ConformityStatement `json:"conformity,omitempty"`
+
+	// Coverage `student_t`: k = t((1+p)/2, ν_eff) (the default); `k2`: k = 2.
+	Coverage       CoverageRule `json:"coverage"`
+	CoverageFactor float64      `json:"coverage_factor"`
+
+	// EffectiveDf ν_eff by Welch–Satterthwaite; null when infinite.
+	EffectiveDf *float64 `json:"effective_df"`
+
+	// Expanded U = k·u_c rounded to two significant figures.
+	Expanded     float64 `json:"expanded"`
+	ExpandedText string  `json:"expanded_text"`
+	Level        float64 `json:"level"`
+
+	// MonteCarlo The Monte Carlo check (JCGM 101) of the bottom-up budget, on request only.
+	MonteCarlo       *MonteCarloCheck `json:"monte_carlo,omitempty"`
+	Notes            []string         `json:"notes"`
+	RelativeCombined *float64         `json:"relative_combined"`
+	Terms            []BudgetTerm     `json:"terms"`
+
+	// TopDown The top-down estimate the approach weighed (relative u, k = 2).
+	TopDown   *TopDownEstimate `json:"top_down,omitempty"`
+	Unit      string           `json:"unit"`
+	Value     float64          `json:"value"`
+	ValueText string           `json:"value_text"`
+}
+
+// UncertaintySpec How the analyte's results state their measurement uncertainty (GUM, JCGM 100) and their
+// conformity with specification limits (ISO/IEC 17025:2017 §7.8.6). The budget is a product
+// model: x̂0 with its s(x̂0) from the curve (linear and non-linear), times factors of value 1
+// whose relative standard uncertainties the method chooses in `terms`: `standards` (the
+// largest relative uncertainty of the standard materials the run named for the analyte,
+// certificate and preparation, fully correlated with its stock), `preparation` (each
+// volume's tolerance a as a rectangular a/(√3·V)), `repeatability` (the sample's readings
+// inverted one by one, (s/x̄)/√m, ν = m − 1) and `recovery` (u(R̄)/R̄, not corrected).
+// u_c by the law of propagation, ν_eff by Welch–Satterthwaite, k = t(0.975, ν_eff) or 2,
+// U rounded to two significant figures. The laboratory's accreditation, regulator and SOP
+// come first; a qualified person reviews every result.
+type UncertaintySpec struct {
+	// Approach `bottom_up` (the default): the budget; `top_down`: the lab's top-down estimate; `larger`: the larger U of the two.
+	Approach *UncertaintyApproach `json:"approach,omitempty"`
+
+	// Coverage `student_t`: k = t((1+p)/2, ν_eff) (the default); `k2`: k = 2.
+	Coverage *CoverageRule `json:"coverage,omitempty"`
+
+	// Limits Specification limits in the analyte's unit, at least one, and the decision rule.
+	Limits *SpecLimits `json:"limits,omitempty"`
+
+	// Preparation The sample's preparation steps whose volume tolerances enter the `preparation` term.
+	Preparation *[]PreparationStep `json:"preparation,omitempty"`
+	Recovery    *struct {
+		// Df Degrees of freedom; 0 or absent for infinite.
+		Df             *float64 `json:"df,omitempty"`
+		Mean           float64  `json:"mean"`
+		StdUncertainty float64  `json:"std_uncertainty"`
+	} `json:"recovery,omitempty"`
+	Terms []BudgetTermKind `json:"terms"`
+
+	// TopDownRelative The lab's top-down relative standard uncertainty (within-lab reproducibility and bias, ISO 11352), used with k = 2; needed by `top_down` and `larger`.
+	TopDownRelative *float64 `json:"top_down_relative,omitempty"`
+}
 
 // Unit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
 type Unit = string
@@ -17487,690 +17828,735 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P1fjyNHlicKfhVb9i0kqXIyGJGRSiUDBUwoMrMquzKVqYiU1NNFFd2Cbgx6p9OMcnNGBEvKRe/2YtDz",
-	"2vPQwDwsFrh3d567FwvNYt9UWGAfLro/w+qTXJw/Zm7udDLIyEhJNTcbM6oMp7v9PXbs/P2db1tjM5sb",
-	"rXRhW4NvW1MlE5XjP09loZ6ns7TA/8CTRNlxns6L1OjWoPV6qkRh3ih9z4pcfbNQthDfLEwhB2JqrsRM",
-	"6qV7bkVaWHG+GL9RhZiaLLHiaqq0mCyybKjbxVSJ80Vui04k5ioXSS4nRTdVxaQ7LYq5nKfdXBYqg3F0",
-	"eYTd/sc9caZ0IYwW6lLly6GW2l6pXBRGSD+iq7SYCikuZZYmNNzeULeilh1P1UzCrGbyOp0tZq3Bwf7h",
-	"w8NP7n98+DBqzVJND/tRq1jOVWvQSnWhLlTeevs2KtfmlcnS8bJ5cXAxxBzfiEQ8XPT798c4CfynOrr6",
-	"DT27SnViruhhPBAxvhOXiwdrEtNL8VBbNTY6sYKXDdb0nhU2/ZMS5lLluNS5mqRZJmDVOpFQvYueiA/6",
-	"/aOr3xzGYmLyoX7QL9uXgtp0i4V7IcxEHPT79dWay6JQOUzxj3/odx99/eujq9/QP/6nll8qW+Spvqiu",
-	"1KmayVTD45XFOnUDKRxJiZlcClvAHKzSidDmKhLFNLXCaCXGZqELldAKXE1NpobaTyZTk0KkOqC4zpFI",
-	"1DhX0ipLU1RyPPUUInXC62WHWhaiCOlaFqon+kBjUhwePLpT2jlVVjWcqzPa30jkZqETlYjFPBILXaRZ",
-	"ZWh8mlKLp0jIC5nqoW7HvvmuX/FYqG8WMrMi+BH/G3eORJ+OYuqbupM5qiJfHk8Kla+dHxzTK5kW4lxN",
-	"TK5EDp+k+qLXilqwNWmuktagyBeqMphN/b6NWnOZy5kqmIWdLPJL9exx8/Ecw4/3rEgT6DKFx3NZTFtR",
-	"S8sZNpxsHMr/lKtJa9D6q72Sg+7Rr3bviy+ePcaFeJao2dwUSo+Xv1cNfOJYjLNU6aI7nhqrtHijlqIt",
-	"BXwP+yHFhTGJGE9NOlYdUUxlIWbyjbLI4Yo8VclQX+VpoYSVE9UTT4ATilcvz17Ty7YwOb89NnkiCvw4",
-	"LUQ7X2g7EFapoY7hcBTqdKHjSFxN0/FUyMwaMUn1hcrneaoLK07OvhTnJkmV7fTE79XSCpkrYcdmroCx",
-	"DnV5eKlnpfEszY7wzMLEYF3pBPPZg95koZhrDXVuFnDeYHeCvmkhzn533D148DGwJejJzFUuYREj+FTA",
-	"zg11uft4qpEFmGQpJLyQW5XgY6XHBs4VHhnRvpri8s3lWMHPQz1Ts3OVC5MncBcZoQ0selGo/EhIEc+l",
-	"tVcmT2LBL6bMdMyi6PSGuivO5AwnHAkrZ8FQsfdgYpGYpMBpHScCQspUoZLBUAuc5UcfmTy9SLXMBF1u",
-	"H30E3eHa8vCxC1vIYmEjni1MQoj4uRljt3GHuF4cEGP3VM0zuVTJQABdxxGOTZtimuoLkVpoAOiqUBom",
-	"TePk+3Us8zxVdl17E5lZFVcWAvknNK7yYDVMzhcO/wKDH4jDgwPovB3TRT8IO/m9WsbVJQZyzRSuVXUt",
-	"U8v3R6rFJEsvpsUA36KbDqcngT4mBmgPZ18AH8xxHnBEsJ9j3yAS9USmGVw8h9fXMPwH19cdkRhlkUZA",
-	"sEGae6OW1NkbtYSecCwmVwkMBp4XudRWjmkViJ7xEEe0INAGrTWOgY/nazhbMTQG76vrsUImMhDS3wkW",
-	"rjma+9RcaWG0o2khNB4zGkckLMlIMFd4/bD/CE4n7H15jFNrF3D9aDgHxVRBK8ifcnVp3ii3bPia38R0",
-	"gsPnkVxJKzJj8Vw4Jkv7WrLZ2gbX757nSl8U09Zg/+ATvHb831FFFjnu/q3s/qnffdQbDbpff7sf7R98",
-	"8rZZJHmmbZEvZkqvEWpT/7tIE6WLdJKqPEImYmyhknKTgIeuuzzKTm57iTzzneOwX8kLdbLIrcmbhx1r",
-	"dV2MxvhG7MhqnqvL1CyA/12oIyHPkXUA0ZdHBn7ys/hmofJlOQ1qrrXtkHl8KAIs9LqbN1/o93vvvoXv",
-	"7dxoq1AO+FQmLGPCX2OjC958OZ9nKXHJvXluzjM1+/XfWRjot1v2+Iq+ok6rU30hs4nJZyoRdqkLeR2J",
-	"q9zACVvOFXAP1EoWCu4NmybExKjZgZi5b4f6r89efhYJKYiCQVrLlZBCL/DyOVeZ0RcW+LdY6Dcajv0k",
-	"VVkCn/ABESDw51JfKHGZmkwWCn/FrRb+ziQO57kZLM2Sjm2TUtj1WmHT6vAXezUdMpR+u6XqtFUL/Hql",
-	"iYpOsVUr5Re1hlgU37IReBt3/MToSZaOf1K6wiOkrFnkY5Bf4e5XcKTP04TuBndltSUJuQKYgLpSiZBZ",
-	"rmSyjIQcavoJeJlZFHjHF1FdcUaShKs2LZk03gHubh1qulw7HyjlBkp5ihuUKP1Tkwpd5pkcv7FkKCGh",
-	"XWQpXmapFvF117HbLv5m496Hzdy0mc90oXItsyd5bvKfckNdx0JBz6QqodBvQWg1OluKYSutvDRsOem2",
-	"FI6TD/u7cX8/M8VTsL781GdVSxAXHHMvL2N1ndriw55t3LNXcpkZmbw25rnML9RPvXV4CkErU3wLW5Vf",
-	"qvyeFWOjJ+nFIleJQMvuh33cuI9nKr9Mx+oLLS9lmsnz7CffykQW8lxaJcZSw+k7VyIHk7Hyhmja3XSs",
-	"SNdeFAWI5om50hEK2+0Jyveo1HfIcJ1qW0g9pi+VhRYT5tjnaiwXVqFK6fsGG4wU8E1y/kEO30Q0bG7u",
-	"envzxo9LyzTu/mtjXki9dC6In0U4CxxouSyQprwn5wPHeI+b/4WWi2Jq8vRP6ie96l+k1qb6IirV/Mgr",
-	"7yYXZF9LxLmSucrZa/mBBNaTwFdffdU9XhRTpQvYM7Vqdoo/xbWMncVZxCgbx0IWRZ6eLwol2qdPT8TH",
-	"Dx/0O5tdUHWDIhHSPDdjZS1cV090kRbLn5KevlJZ1mVbU6rnC7ZWn+dKvkHnzyJTziLIF9cRr4CN2S0D",
-	"F9xQm8lE6QQuMzQilZrDIlMfLqEbJJcvtF3M5yYvVPJCJal8jZTyUxuG8CK5Z8UJ9dqFUcCVok2BvreK",
-	"90zIMfgR7Af2smFn37rjj2tzjCsm9Vg9g6MGj2SSpLCaMnuVw9IWqbKtATrC6ntUfi2Kaa4sRsMc4enD",
-	"3XGeRPbUwmYpfZFqsPQlaiIXWSHa5N2BkAUy4BhyK81UMTUJsq95MI5vW+dy/GY0ltl4lJmrUWEylcMI",
-	"RnMyXKrrcbaw6aV6EXjXgZ3IojVoJWYBMnhUBgLs90vvO5mhYZnLTmapHoGXdDTJyckFnWxqrzGeoKnl",
-	"9zT0qZkZO1aJtEU6TovlSGbz6Y0n8RhfehuRvQW2dcfvwCY3MpPRJN31y5nUiSxM3hBRcDJVYOm7gngC",
-	"9FcucvpfIqZLlSfpuDjCP9BlR458mVym1uRL9MkUamZvdPVAP5/JmaLxXD+jj/bL9ZV5LpetqLXQ6TcL",
-	"xb/DbcoTUNnOs74e5ZNRbhO3/dWp/+r07LG75pz/R0zkuDA5TT6WlyqXF2qUT2IxM4nKhMwyc2VFewzT",
-	"ETE1H3d64jEftoN+JCSIjOKLM/Hk1bE4+6r7yeHH4gUeNvFJv99/LNqT3MzETM1MvuzQ2mby3OS4R/cs",
-	"n0xhFYfCmSsU6O6GenFZ7B0fCTjDmbpUma3EAD3oB2f1YDUGhz7MR/abhcxJqH6Hg28WRZaqfDQ25o0d",
-	"JXc3O9ewLRboZP2TusPGwSu8I2VfqjydsFywyuSqVP7drx5/B77D4BMyE8g8Ee1nJ1/unZx82aEIOgjE",
-	"xDgRW1CEjTYzjCZBz+NuRD7UY5ml5yw3hN1vSfAoPt7FEr/1T8z536kxChzlvVoKHDtcyxQ35W9kjBox",
-	"+VhF7tK15XW78/26Or13vzx3uSS3+Hr9DbjFxw333xZfNd5+W3xXuft2v6oql1PDTbTVCOr30LYf2V32",
-	"pMqCb8Vpt+GoO3xVY5dbfFnlhVt8sAsnBH2HuCFc4iqBI9vMF61oJwGrW8/kUHi+cZhvQ/vAH8KNqtFT",
-	"E5WvPWzrz3C0kcNs5h51OqlS4goxr57myiY208IqXYXHdOOmft3Eyx291GNlbXqhsSE9Bk3pUmW91sbb",
-	"o997EIoYvX6/v99AdMdaZstC3XhnVLk+CpA38Z4X+FL9unmaYrR7aoWkrquRkNiyKKYy1OvuWRHjDzH7",
-	"F7xHoSLWwi9GK9+wmQjJLZBSMNSB2D9JiwIsjUshRZZq1XExYoNqz9gx3OBvXZjW9rFrUeubhdTFjcIQ",
-	"DfhzfPctqg03fvMFvFM/jjg+/r6RvMKOdtTetVtXCGBzbnYvfVEqAViAwIIGNjPbE1/Rzja8XrhYuKEu",
-	"GRW0YSUEAluMtF2KOLUjH84Wi3OF0WJx+Yg8UhTPk1q3p2QUGGr3nkDJTRyPrveOR6n1ciF8W05qbPRY",
-	"6cLFVsNoJI+HdcpnZ0GbWapsJYCN0lREew48RBdOHXOio8ntPTFTUotnZ15HO3JC1lB/3P/x7//L/sED",
-	"8atIjM1sZrR4dvKq++JMzJGhgUQW6lo430xeXHBsNxyjqcoSioygvYAgOoq0S624/l//z33x538WSZot",
-	"8Ir48z+LCYnEJlvMlPjz9266cmYWuoAHSb4UjqG6GF6/z0MNlFama8AwIN0CqJ/HURGN5XicqyQteIVz",
-	"dbHI4Df88OzlK5i3GmqMzTwSsmxLzFVujeZoLhfMkyu7yAoSrmtSaSb1mxE6kPx1AFdRlplvmrgrvk/8",
-	"AqlSWLAlAoP5u0UCC4yRh3C7KM7f+g5W8zvx43/+X4iZ+TXiXX/+/OXnou2J8x4EA18pWwhtdPdPKjf+",
-	"LHi+EzW0HCx26Q/bXZFoEppxiezivAiE7Vq6Cv+oEiI8tNQRhdxjcuJsI79cnGvRjqn5sclzNaZIfE/q",
-	"ItZGK4yzUhrG94cWPIARK6lHxHhH2EDAxNjpELWuu/BV91LmaL2Hzz+Fd8/KqXxGzdUfv1BSk8TzKTWO",
-	"ZuRxOpOZXZ39KRC1KAztL+b0uZfx/lEygc0uL+ZCUKyD7dUXf1PqDgyhoDUigl1jONhkLHD8deRoarc7",
-	"KrUj4l2jaXoxXS+mh5pp/6Yh+TZBaruTJh03yG/Uej53b56Rk8yfoVuvcNnC9ndz1ApoY8S0sUpnzhBx",
-	"H/JxlBaxozJMeCDW0KmSVCjZ7Tdmoa3e/IskLZ5cqi3u/SorXcccvppKSnJIjFYu0TJf6B6lbCRxJGJk",
-	"fT26lMu/5Xyem8vwSa5gmCpBnlBzMkYttGKuDuAzTDCaiFryFfKr5nZqGy8L1S3SmWp6N1GFTLNmvWsu",
-	"8yIdLzKZ20ikepwt0GsoXaxxjkEN0hrda0zCCAU2WbTcBKOWV1u496/X7eNzc7HjLqpLl+a8ldkgoJYV",
-	"u0FtBtxy01hPJMoZdg3xsK0aaD/lrDV01Q3YM4cCvhPVgkgyLzGN87RQeSrpdpovzrPUTlUiLhZpAh83",
-	"GOeqEshQV0UQ1hVAEgEflJjnaqwShU3R5pK6UJdLhtpncmZKWnYX+5Veoa5Zqp3PYNUqgyabHbcXtnBR",
-	"qGR1pZ/C6yRYoDACjUMWcZYIju9y3+JqaUryUwkyH+wLVyYmkowp2PZqugxI+9yYTEldPTYrc842pNKX",
-	"tkckBRiRzDnb6EhoSPKtzWAqgVQ0JpNc4b8LP5FNdow/OJ4etaBZFAE2eJS+mirUSkuFkHNQUSagoQC7",
-	"TlTVw4Rq5lVqFc8odDGtrto2WmXFkEdbFCxz0BjFzzZOJVc+oMEniTqZDCRvPEeNrNPCgbFFOl6zgcoW",
-	"wr8DezJT0uJhRe0j3MPb71SzrlsOzdGYX5+oPBdVowyv0UZGWy54U+Yy/Ogun4BbEeLBQMSlXQxuOTKM",
-	"xdFQx4FRDH6p28PgmTdpAWcC0TkSsTdiYSO5gl8ulZf3RhTSE4nYm7DwK9CXFzIbgRkLHrCtymIrM6NN",
-	"YXQ6hl+SPJ0UcU8ET0XbrxmwPaaUjuBNsKRjk+5dGGAlQDDjIlsK3whF86F2bPI3aBqQ+kL1XIcY6+l2",
-	"SchCpPpCWTbBaHXltSebmbmqKO6oSqPi6D2flK9T5jDCr6V+f9AXM4N5smOli6F2cgj1YaMy7+crZYsL",
-	"mSeCBBMyZ4g2ZYz/9slrsXe5v1fkSicW/KXPKmdcLHSmrA15RpYSEIiQdqj9okZ8CMMsagYHUQjmMZVa",
-	"7PdFbZxDjSHxkeuHGii3ql2UoAbOCiBqLBJylmJveBmlepTIQsWO+VY3o+S9+UJzyBR61FwDYibxHs7s",
-	"Uc1op67ncFw9ndqY+WdaDHV1yCV9mdyvZYSjRmYLawijZjf1OuIMZ+ByPUMj4VCThRGij4nKNrrOmeDg",
-	"tFSMxTG79Fh/bTCDVw3gDabv0HjNJ70VtUJr9ZpjHhqq8a3gkJf2aByJO4atqIXnjfhlddeRTepLlV8o",
-	"jUwRpJ7Ugj46z80kRZ5MM99SHUfW+QLylXlF6IFbFvzruRy/eTl5mhbuwe9WlweffyrHb04qS4SPT8/8",
-	"MtHfvFZnPL0nvFL447NgufhtWrNTWjJ89rJcNxpvsHj44DGvIP7h+rHP9GNaRHx8UllJfPTKLecrv5o0",
-	"hskprChlUpaGx6brxrmuaxZKNseVHA500xvcAqBn+/+7QemFDM8Uxd+Ga//KdG2aAFfyb5FfAs4S0uel",
-	"zGwk+r0HcDv0e48ePbrRZfHo0aOK0+JB86iK3GQYp2Z3NGKfTdXVVOaoTkAjZFOzov3s7KV4+MnDfveg",
-	"44QVnx0KOQlZqtWq85sNi2A12dLHx19k5mrLD3C/1ZYvX8lcg41ihwG5T7YdUU0I4+FV26kNpDLrqLJo",
-	"X5fSHktegVzOG326yBplsPKSBnm27f9UhZBZLxInWap74mSqZj1x8FC09x99st8Rh4/udwYi3u8e2HiI",
-	"GgTZx8/V0uhE/PAvByBPtHkCnSN49b6N0a/k37kvzh4fifgAGhHFlQERRls1XgAHcq95gQRbREI7EvFp",
-	"95C+EcEnETQ/1PLcXCrxa3zfRR8zPojKzJX48R//6YB6PuzuW/B3LXKx2vNQ+673w673+9exKJSufMLx",
-	"k/g2ejLMxEtX1TsOlqwVtWA5WlHrgP6C6bSiFowHfutfb3lFwKbuUwvwr/vuXwf+2emh+9fhvn+vf02U",
-	"sQYL4uVcfrNA7BGrCkEADqIN5/fjw0Venuk5sAx94axqDlfjwf7BVjgbo24j5FdEoEu7+tWc04pMYeIr",
-	"L2wpCYO0VW2dX5ZA5BlI8WOjJpN0nCpdoIhflRVsTOr72FzKPJV6rGJ0fqrZvFhGJMHT0bZkPtMKWodu",
-	"8D04jJGIWbFFATGGiEpGzYlREbJoFhhqMAs0OGPkmPjFSBaNamkpW4Im796u3hWbbHWydGGv/DYOTFAb",
-	"1Wv3HnyDc9otxKYpvCbcmdWJP9PkWe4CQBmDAiUqH6AvWubiD+f9SJzvfx3xgxHBIYk/4LNvFjLJZZGO",
-	"3XuROD/4+gi9S9wAtm6FtCJGTzzbbtoswGt0w9C7PY+EMcJf404lFna7EB+2aD1oWoj1csRJg/SA6H6k",
-	"u6GLxdkovFSxVaRK1CqJvqlf95uYySJPr13H4a5Fwv7wr+2/+f//v/7+q7/p/Ph/+v/88P+ORA4xs6kO",
-	"36OdqyzZna3d5oUlU/vmg8VgF9J7x9HNjmBI25+xZNKEXUhCtEjURa6UhRWc5EolZhYJDbeVmAfWpMDj",
-	"RWH9o0uV20aJ93XgNoeTQe8Tg/LaHaH4FM71gO/v7ff6vX6zG4G9pkbfdKCf+BffRi3wsNsms+q4AOcM",
-	"pivQQGh4bA3UxhkDt44qf5oWTzN50cRJpkpepsoWpGPe1BCqXWdTmaOtME22Qw6KQtymRgOuj8er+a9S",
-	"W6R6XND5tU4rmZAqstn1mXkhfuOE6C04DWhZaBwe/TQCM/16oqKXhHup+XyAlFAZ+n7T0HcIgQITb9Px",
-	"4fu9XDDRRiJNMIRFOZMNIn52bl5Mz863gKq6VJ/5t8GgbNLGS4pig72dh0WSyK2UyYUbcCQucrOYU0AV",
-	"cfJU02Vu0/J62z7HAsb4CobVdCAqsZ/1hEAA5VFJlUHDJVKofJZq4ijtBWnSbCWqXLGdXR0IaNK8aUKn",
-	"+NLbwF5jkw081a95oi5TGrNtL/euO5ET2f/tf74SvxFaXOGEhR3LTO08crZ3jdjetdWunPJHT/kbbAec",
-	"YzcuAb3F71uKyYGPZJa9nLQGf9iGT31dF6Bf5coyGLLUwnN5f8grIWLkss4VEzA5PChYd7Q9p6zJ2A2R",
-	"M2736IU1sgU6sFdOxbtKDASIudVOntGrQcRhdRpfnHzxQoxNqRWuCZbzhqcVruyErNFW7PJLftuzTb5D",
-	"b/yOXwN7Bp6G0VjqJE1kodYyNf8GOBfGJncIlLFcFCb2EXWoC13DrYANo6M/S98o0UYVCqiOzPKwRIEM",
-	"subjztYMkPjYiRtlExd0cwWbo262Hf7OXHHnDrRWZiphmUkDpWWpRRRbYRcz+B/tUInjgFE1S1R+Vtuf",
-	"4a/8J6sH+bUDAVRiYR3GNYJeE0AwRcfQ9tApxnxfvBvD0YzQe6CSOx8V9z2eGmOVde4FW6rqEYEHe38J",
-	"ixtEAxzh7JEo2RtaEiIr+ueK6DGpzcpP987nFQxV2jd0JWLnEKc4mkqdZI3g5UBc8EqVGVjCceAIXXGl",
-	"crDIzAuO0shNshjDMUr1JNUpxH8TfR6RUcKti1ZC5saqm2NoCDSTGLgXEVcFwqgKTOqsBsz7nEAXUnXz",
-	"6jfxGKcnNJ3J+jLWDAOrt0lFca3KC6iIVZ1E0IF3PQWathfqvEHDi9tOYin5q781ooq1pqJhBsaUFQ2u",
-	"0YEObPGkZgPZwTD2JdhlLQXl1s0aeAGFd+k5QWxD0LCWFZJ2EfwBWLGkYPFcTYjPHB4cNGSOb5u2c77l",
-	"e+Mt39s2v+hiy/eW/W0N+81b+Ew/NRxRskvY4JpYn5khzzzyGdSftzdCnEubNgaTLTkex6UBlCmMqYbA",
-	"g8Q23l+3Mg46E+/NwtViNpP5kkwP8zRXdr2dJgXtWV7SpTJWQM5VCiYXmUAk44p7ymh1wwL+oTTEe7k/",
-	"k7YYhalJzZuVSYzsCV8UsgD+7mQEWcTV4B4ajtFqi+vpy3AAb6NvS5LMstbblYAfWnpHBhHFTgZL2zSt",
-	"YJPX8qjnqd01KPbWlLODWblGQys2IWlHM5PfSIu/k/aFIVNQgJJ901efqesiQLRe2QbbqjYXjGebJf8s",
-	"NFXscCdg3GjlOqAzL5PEDgI8Z7Jxt5vMtJ2I/WMmI4xCsyjGZqZITfRG4clCo5/ynhX/9t9RG4CEctIf",
-	"h1rZIp0xmLQeT02OKNSJwx0nf7/g8IkyrqgSAwX+EheSd/Jlafcev+m6kBCVVEUrYQsw4SMs/VDH3D7n",
-	"uWBUijguYc5tkUs0DcBSWZecQ24D2xvqV7mCyx9FNpTNSJhldWZhaWipvlQYQjT3r6NxHgquEH+KIWRN",
-	"JyN802KuR6MbiBZqldOgvRLCdFVG1z2+GOZNiTb+CtOnVBhOGYT3YOFBm7OqM2C7FEUNUeZOb2Mg7qpB",
-	"HSOKiR+uvI1y/Or4X6m8QmZryA44JNUJICPEFEGmEJyAfdDtavAUbsTIE7XtYf9xR+SSg1Kl5hk3zTKI",
-	"Cd1oL4AZS8/NGmy05mJ0vaGODFy4SS6x5oKQIjMXNaKV16ltDnzloweNOy+zC0VKSCYF3IFWMMaRC/G0",
-	"qYbI7XxLf7NnOCdB+/7hme/IP3rmenzOHZYv+57Dojsj7urbTWHfm7aBD/PW9wNHE3kTadn4x4drWy9Z",
-	"xZbCI564G0ne8U4g4pK30nF1yWNtq7JJlx9FwuTiBmrHV2N4MWbCv1MzWTFVxbYiPr472uB8YMY+2sUS",
-	"XLtW65RUno6QLVWOq5tEbYCRZ7Xu8JbU1UQJa2/pV5WKUruEWTk+fUk6nNTOCBJqbc2qHepywWukz7Vj",
-	"iaHR8B+KV0YTXeRjPB+8eh6J+CI+Eu5N/GluIJIW+lfX85GVxcIFzwUNLvv0cvWVkZlMrCqOhFWsT7Lm",
-	"6Rz2nZ44FjGTKRE/lpUZK4eCXBK8MBqVUyblygTTpruAaxI5T0ubxsfZueLw1XM4MzLmZcUsRUVprPes",
-	"t750BiItOFei9CigmQE7SEzoZKpEV6/6dGG2tWHDp+emmPqT7jeaU2+UtEWXbBXWBSRgZo1WKd5ha3Rv",
-	"f9PeKCFXDAwhw9rxy7XqLzHY3ej/pVYrTrOydE6SygttLEhhQBLln7ikXpdKixoIumhrQx5vk8OG5saQ",
-	"oFeRGZG48QWKGe3jKy6UmDZ/E04eyZ2NgRrBnQ6Twn695MjxSzs6oMb10NetwjoQaCMlCIhNHzX16ByW",
-	"zZISHbdd2/Ru+UaneS4vdh6lD/3G/WrGgNnv93/4vl3bOAy7qKxqZ6/y5y1chGh+3H0GxIO2FjQ8psoo",
-	"7LK5BkS2FO4DS1UD8INd50bG2nU+5LqjFX0nvmqko6N3ymEiwqkfg2Dx/Bg9aQY7smbVAqpbOSzRykFv",
-	"pLXgmKyVDupu4Nto8roK4BIq8x7iIUzIEKdPR6n4jViO0r3rUQqgvRSsWKikRFZwHLe9rCZ11FBAWIkc",
-	"6hV4kgF/xzyzPogkvcTId7LSNXxf9492UEBOMS1ORxhg/AYP6n5wzw41X7QdvEYxLaWa78SiMuFAhJo+",
-	"rRW6lzi/5bbgG1QX7WioV5Nca+AbxO6bsDeclXbVfgviid0QCSMLf23BRrqKnBewCdqI06fN4WRvGpLD",
-	"F1TIciJOn1rRRuSKdWRCpXU7zW2vi3rC5XUBi9j86VOfkUH1M80EQDVtXFFbbjRBEETVTvBqSm57deaT",
-	"naMT6+PbbWx2W29Gmba62dkHMwgcXjh37KYcGRBEdR096ZXGY+5vLXc781EUdVqFQ0CVx0Ai9jmKGBo9",
-	"JwTxER2V+MiDAggEJ9J0RTlbR/XtVtRymX7IlAkSYduUq3LMr6jVU9do8NNx2X7w9NR35SfPZuddkSIq",
-	"cd53ELxdCW/drj0qUzoqY7hXQSPKcBx8ieM2U9K3IHU4zC0MkhE7ux3kOwu83C3o8S6jFreCWGwU/nYN",
-	"p7p9xNJqyNEtY4Y2gKw3xFP8dDEIobO/wV9fJfgN/vsmVveYocCaonrpFyfzIHq/Shgq15v6RdunGP+G",
-	"+SDZLwKcsc6R2CeZmSJfbgn/3O83Qg4/CcO6dxBAbwobbMz2I8fZOyHLbA61dTIJyZ80Eqdq2Ar/2YEx",
-	"r1dPwV7ly4Y0wAg16SrlN00UtSIugLFzRHA4ZSdNPun6O5VhVsJFtyo/Hw49/D6Ii+Eea4MM8HiaD42n",
-	"uO1MQ2v2Ynt4rsomrRqaHMnwpYYdRGK/C2lvSWMQ9pFXrla/rB/UdQBdzbBTq/SycQGDysQ7LGF5grZy",
-	"lNS2q+oX4DmtR+Op0+92gXev1XXREHNHkSqK/L8MU56n+o2QbEdVGipiuFUsAwkZOxDd0OnFFP7N2RYy",
-	"V/ypt0dUztLdjNcraLkKO6q7MGoHq2nvXZZLQ0Iv3DScUiPrCTU2zKgRcYJaouaEmBFdl/GAEnrxGZak",
-	"B5szetilFlOZTUq4sEJmLnCeYT2qOTYAVxhP1NXIHz47mph8ZA9iyB7es388oCBUjCAjS8JQU884bDC6",
-	"E4yHX7wmUNtUBz3UQCUaJwk3ftOwttQTePkfc9Poev/KNcw/PlVXp775pyY/O0D+7AJJ1oIkSQERIVhT",
-	"nQzWqNDjeqcYkpdSLXYO3pVJs1P4d0pmxXRHnlCKkG71zBsixGS55dJQvy9/33JDOKWP61TOXTUR97Oz",
-	"7cC76pTvMTWdJakbeA/Y9hSagjZCyq4KLuXrox1sBRuwvDbDRG4HT7nS6EacyJU2N0Fg5Wps4ILbobld",
-	"rdVbWitWZ16x7dY3pjb0ck2CJY9KdCveoY3GjECUaGC5mjEUpQ5gkyKX5hExp4qcpStnSq3lzX98uFXa",
-	"/NflP3ujQffrb/vRx/ffNibSP9N/R5Co29WZqgcalZDmW91+obj1dQPu9bOTLyNxAjFauXexcidQaJ4h",
-	"ghkTjF8JAzRZebKiMCx58deUuJAmdzXUgJGwyzimJ4wC8M14xH9HJbQ134n5AszU7E3HudzD2iVIIz2G",
-	"dPVh/duP+NR/8hZuEVqsJlrk293Xm1WZVRQh15a8phorDLPrGO8TQ6VC3W7gLEt08E7F2iat05e3vBE8",
-	"Ff41DvoVNVB7+hTbAyt0SkWzXX9BAnN4/NPxJZx8/u95K6q8iPMsDQfuT9qqVtTyO7jrFE7KTs7KwZTn",
-	"7OTL8M+T+p+ftqLGtj7lAfrfQnzl4PGZm4B/8vkJP/saU1fR6r9DIaLVC8GQinOzDewdiXhLBuHFPjMJ",
-	"SbQnviDYtphOAkJqgIMDRcOlkLkaaiwaQL6X8NonaHKyslQT8kT7ah3UflSi4cOO2UEdVB/h4tyl1RlA",
-	"I89oKjCj1Dr+dr7EebgbKgKBl45lOx6PKTKnTsnwMCTluAPNBAjnvs4vY5GUCYbxJgz3GOxLN0Kslwh1",
-	"CCoHDIWnUIFUX4OjJY5X9xLSu4Yay1izIJbnyy6sB7N/H7mR5gqRECeGqqzB2051C5apHCKGgiB1C15V",
-	"bVZ3s4O0YkMmR0yPqYnrVKDxaUuT1IoSx+eIORreT42ShRcYykDiT2Uxnt5Oq+fVr+r1t7v1tzetcLWJ",
-	"HYIu3UyZedUKAN5gTqgtdWn+deNoWudK+zdYK27IuqEqFhzg7ZJkUKkHNRbQY67q9p/tjJpVhJeNVvzy",
-	"zTXLYbemtncitN0IZfuFLdc1tT/Psv5lkPUzBvPZUVkuJ+rhgMrs+jDMiYC04nMqTVLCWUcizswVc03g",
-	"yLEHumqIiqOvm9XMm1D2mhxjqMaZuVqTcOWnlFrBfTP22/kyGDc0IAgtrv3rH//x/9qJhLSltXBdysZK",
-	"wC0RbBkFmgEVQ68sVdvlbF6YAipmr6xjuIBu8VbXyJu7t6mKZ652W866wRnhBRly0Hkr3A42keBzWSgi",
-	"+FupmVvBmrn6QdJ6TOyj0iaWq7FKL1VyO/ZwK06WBC6/TV951+BWruy6xyKQsLeUq5scqiUnKVts3MgS",
-	"8Wg3bvJ6GpqLneMtkzniHltosclm3GBiu0Ucq3UDro4Jwg1Dj0xFlwBJk1+QWeZCmtzvt6ngVw89pFE1",
-	"rvJtEFcfu+I2Lv9MFz47k9FXI4JTq+OJWPA0qHkh4nGeFulYZiN0LcdgD/AR7pug5Wtb5FoZb4bbBSjY",
-	"/f1PDu93D4T7hp3avC1aFXUo3uvReOfQ58qsbjMOtwiRWO7e/boKJwDqgJooAje45UTL0NV0CWvcW1Mw",
-	"pV7EaP10WD8X9JEEnQcnBuu4c/mGzDSYk56d/E58fiD8qJySeb93/4fv//0f9s527+Wbtb00UXUk9vu3",
-	"68mmFzPZLB743f/3f8BD450DeF6qyCIxtjPCeDe4tbfETAy+2t48cgYffYrfNAON/Ps/MKSLBvsnA6l0",
-	"6lAoRQA+r5P10DptCgvFFvkcEGjWGRQxXRULkhbt38qZi9YxhVV63lgr4rm5SBuBuylyFi0TF1w9ObCM",
-	"O7O4s4lvNIm/8FFgO8korjTFjRV/6kWkdy68xKFGZJcNo2hWpoI1a0eQHjUqgcOao3OADop8oVYwdbh4",
-	"PeZYUSNkCgJM5K5aKkuw0CkQz6TTLJw2mhy2qNPZDPYaqmrbZLHcjN0ZrCMKkPzJDvpjLady+xNdz/9b",
-	"PdZPCP4Kz4Bd2R5MwyoT/1C/mKb6otd6W2vo28Z2SxAgmDjaR9eAetYKTKwlJVSRYhfLGUdYAWJl3K66",
-	"jwrqJ5NlLyzh40z87tmWxng6wk9oyL6AwLFvhKO/adcgJ2JqFk0J8595iYf5Y2I4Swxa3rn80W5AllwR",
-	"ZzWujYOZaUhQXGJiqj7Siod224BVm15oWTRXznNMor6JvkBN+bEojKujIiTrvRD4wRWw2ZLUKz+ouI7o",
-	"S0nRb8BrRlInI/90l90/8z0cl43Wf6LY7WOd+He+vmWYavDVyMy3wizxX7/k99cUXgqCWsNtuQlIy42i",
-	"gTvV8Ks8e47Ce2w9pTWfnhqGFd1pTZc4bcItwGCI6ra/RaijGwvruWbXj/WW9s9byARkH9nu6g5rps3z",
-	"VI/TueSgqLmxKNyJfEFJqjOZKM6RwFvufFlG4kYYIOfSJwrn+PLV7HFyA9Fw6ROwlxV2MZ6WGRjoIcN0",
-	"Y3GmCpEW/gZgEJZKthQkRLGMAbcQp0AVBngtxNvdvUSxi52/Km1seaWX36ze5q4Iab/36EFvneiwk8Cw",
-	"cs3fHH+41XVeRpsxcDOa3vOFJn1AamEWRddMugipuFKiaqghAMCKduxzPLiIeFh/CimD3IRYYKtdCg6d",
-	"WuWnoKzcrcQBPsR1qeBF0O7GF3cXH0DDz4y+4Fj+MDzYLSrhDDlPBngw2FX6jmH8nzz85LApiP92Msj2",
-	"BskNwsk66oJwETAI0oIg+5JXktzHyE+AO52rEFyYl6vGotYoH5sEG0qOxbufKssGPv/UOjGnAFnV5YEO",
-	"hGQmdc/yp+A2dp0AUUvS1u75GbRfvTyjWna0LnvfpsnbPfqx0xOxayYe0IHY3AM9Ugz/iWrBUaAjcp+5",
-	"WWCcjr1SuQV2LLSc+YyHRQalARtkrHhA4rv7k8vz63IgFBskRUYZu9hZOTgo20r4q46Vh4VvxkYXmEub",
-	"5gCzQEVpLZ4CgZtg8WoVC12kcJUpfffiYaNg+AsVCVkcaJYLm8S/ja7dF+7wVw9BTE6qWCzFb8R5X/xa",
-	"nO//8P31kYgraO38O//kAc7ioa5+B/978MP31z/8K1X7+uTw44+7B8DNP1upmdIGh4I+V/nFj3//X17I",
-	"HPKvkiKqILp0IjTqEG6HHuoV3KuBiA/nGQ0vEb8GqzWkfCedvfY+/Hm9N+788bwTVTBxhvoPMhLnkRhH",
-	"Ivn6SMQPtmjijxeRCD6LxMXXmMGd2mr+uyw4rZqLOzL+bs2UPRbDRb9/X4m+y26fZGQKi8R55TcuyskZ",
-	"YmUiOgtqkl4ei0TkKfDSaKj5mRIJMEfAwz0SGAyTp8ryXX4OA9fqgpLvJ8i5qAFqeaiTdDLBLDQ84Z1I",
-	"XFTHBY7LmSqgsuSF+I3Ydytx+Oo5Vr5EVCBaVvnD99d/POf1gwWvggD5l9r7uPTqj+0f//Gfzn/4/roD",
-	"QIJrvmLoIPp4CSS4pgW3bcv+142ESLI6YQe642SxcA+EcMb7e8s/HsSRT0hAWD6aHURKzZTUEBFUwVjg",
-	"peBHdWyDQQ1hAbPbYVOH2ufNryDb1HAWfBRpFXhhqOvICw3hTREu2enT//X/AkcW34M/QviEoQ4PjPgD",
-	"/P71EUeSweKlxZJtNpCS7euFhnU+T5/aoYb4s3pZz8gXGzroRywgfXEmnrw6FmdfdT85/JgNBuKTfr//",
-	"OALMBjMTMzWD/OAjAYFt4jfi//f/7O/hsHECizY87ojf4M8/fN+2o9On+Hvnh+9//Mf/2t7fm4lfi/29",
-	"Nx0IgEtEEUYCeHydQszTSwOyqPuNAb/iyg6PihG+B4VpcQypDc6qcyxSOZ3cLC6mdMqJmTKVqUTs713/",
-	"8K+RsEaEAXYBdFG0AjtEg+eKijJnoQm6umc9OqbPffH07ICkMFZmqJmoVsAgAhQIbAw6yFLLxW19UtJQ",
-	"v6b9xRdSXRl+XK93Ucu4IfppRfwPvmEg7NZdK1Drbg632wP8Lx41QqENjv/KA+YHrahV7tO2SgIwgudu",
-	"XMFfL93Y8NnnwQDxwVOzyF8993+ll6r86xWPGv94cj0/C0e++vClGzz+dEwzOH2KAkiAE7tqnpOWyo8R",
-	"RmwcFFhGqWuSZoXKbYnh5tOHAqcugbXCRjscs8kiJzlOXjD+yDuX8GtKR305V2gMaJLOjcilC7VxYWlH",
-	"yNC81kHEDzoClgTA6vbxf4hrmRP7B5/cInXiP6CjaP/gYbOn6BUKuLsiGt8CayFJLfhu14RHuV9vA98A",
-	"azCbF2sQSSeLLButNURnZvxm3Zgy56hb+So32U3wnRutddRyODbX5uqk/BiDJbwxVZ929Rbmybky811w",
-	"RbGfG+fLra4f6e2Mk5WtDQ7KAZvEgoPSsPG8uRtrieFLnEAG0PD1jh58XO2oH21DLF4VBEXHFl4TRD77",
-	"jeyycpyjlWiW6tQWxF22LJdqMnXsm4a/Tsvm4c/Pj4/LHvDtai8V++LhJusiYlF8s1D8c5Ev1C607pe1",
-	"kTLqgeJl0t17Bl8vIyFtcxb9XOVCaVAZfHAN0i/CbLL2GmPQRVrYHWuZhRHLPOMbj1cw3hsA1cvWt0ms",
-	"1ozdoYLg0J6IMciU4GtBn8DYUv5zwNkjPHSBmWz4fpiabnIOSA0THUh9UUmZ5SDasboucjk3iD6H6ohV",
-	"BUkGlNgFmdc0nMwkMZS4dX99Ew+CjsvYHpM3huAcidhpkZAaLkudEhPVhQNxh/fMKDemAMOgm7SulbXx",
-	"aTQuewNCc3OpGZ+sqmoDCu3sPL1YmIXFluOBrxNdNulL/1Vw4bE5NDqj/zt1+Soq6RwNdbzQHNI6cmoA",
-	"DbZU5uvx0fAVbagP6EXoW1zV8hH2V9U/O4PKrIY6tb7+g69x7Tbb5I4W3PuBbRT5nxxPlY2G2prV1aU1",
-	"TIuqQB6QZStqBVSJInZJR62o5Ukm+DeE/LhNh3/WdhmarOwSMr/68vqO/VL5Hson27HxgP/B96c8iPLx",
-	"MXS0+vhJdaq1Zp6/fNz08PPKw8/KZQgemlNjime6YSBuXU5pWcpfvnAL9Kxcn9oEjoOFqg2r/OnrCuu6",
-	"nbTwl5kfsSkrouGquHV2y93Uu9lQu/n1tMJvKJAa1Pht6zOjp2p7nDB6/1ZoYfTp7tBg7Aq4BaWc4pdN",
-	"oWJrkMuayqyMamHw+GltIeqTq0VRuBlsLUXwwHc+iZtiqqvg0WRWwzu8ijIWBnOXdwfr/R7umgPjQmPj",
-	"lWm+Stv1a3jn2q5husQWJL1lueggMadNpCPiqhwXd24hXq6rH502I26kQQrWRl+qey/4JqiG0Bg/Xhow",
-	"IYDPnBcy1b7wZDxJVZapvLms5ExJPdoRkMNZDTchwXrMnKA6IdvjkpvrPVer9DWI2SDhXKNAWYfab8pP",
-	"c8ZlR19BWS8gdiebvhO6NDKPlfyO6jwCKiiLGPrVrG9GcB5WSWEzW+Gbcze28peUrLQ5RelVrubS4S+o",
-	"+a4QQVrILP1mYQpHTHOZK11QANVijuGNBDArLk22mKmIQInpD5FqMXteViAoTKZyLHP1w7+Au3tcSKpp",
-	"01QGkfodzd4JncG1UpiMW1r9qKG6ecBYYW7vOAhq45ZDqG15sCwrswtGW+u0mTLMeaZmDVDDT0/Eo8MH",
-	"D8Wc3hCUgWBX92hdLg/GkVxhiGxuXAkKvj5R3ibbO9nymuOr1xS4fmoQBFRmaSJSiAZgejOTCYXaCGDx",
-	"lMdxNV3ucJfhVJ/Cx403mS6rPqwKozwrMZfFtHE6/ALLnGsbAKPP33RZJ+k+SyBCzAjYYk5EKBEkpHjQ",
-	"7zf2ZdcgSEM/v3v9+pWgF7C+dgVp8cGjRwElHvYbi/0XaZE1rMLZ1OSFsITf7HkF0w+00jhUerBqOPri",
-	"9JlzaSxdjE7YmLvOF7keoKz2Rqm5ygf8zoApJO61qjbVmzAo8Fc3xwDrdkMKToVwBt9ueUBec9CRSAtx",
-	"niv5prlQKNqLVN78fY3kB0KKvz57+Zl4RR+JVLvqPCZZRiLew3J8exQbofF/FP81Bm7Nj+KhhrN5cvYl",
-	"irgxvZHyrwP+XM4Uv86BEj5ikwwpN2F90LxuWtmy0NiOWsFlc+WSky9F+1edRrmoqbIMItzxy8VyjomQ",
-	"OhDrSofxdalB5JXQPCsmmSx2Ff6vt62cGy7qdStyE29azs+5rEJ+porbZCuHQcquREOOTISc7Fju9oi5",
-	"MaJhTgqBekeZ2qLyy3SM/nwKdmgAPiDDW7aFTLTICj8nvDJcbcxbfJvaETjLFrm6xcfg/diyAlv946bq",
-	"T6eupV2qmoTaZ1RSMBtGC1OxmDrzuFgNrfGQZ6zWTqrVoAqlE5EWnZrCnCsKptANIJC3Qau4Q0SGpqNA",
-	"dT+U3RXqB4zTDfGCwAi6V3mK5m1gmfgAIldjKCSSEUNIZCHPpcWVkrTggGylh9ohW4k2NmI5SlU86N8n",
-	"ySk+VUW+7B6D4laPAy87Z/0JO94hyAMW4yv+3v39EpsoIaDtOqlFJk67taI9NYWbl+2ITF50Wd4v8E2L",
-	"UQkXRhTGZd5P0ouF83Ls5NlinNhyI28sRLkK1LoLRqvvaDM2KwWhrqG5IGJpZ8djnqfE13YoKbujkZNi",
-	"G5Ue3x4Ka+KEoCqpoFQyr0slJMqukZarBeEaRFyTN/5U2xYakH+/1vI2MPIkhY5ltiafcKE1xDMrfZFq",
-	"tWGs699Yb36tfrnSWTi46vZFnmKaKTFT0qKNuombBXHnIftid1qYiXAEnA7agkiSWBj0/RUitUPtCspw",
-	"OclqJXcKS3Gl3EuwmiMRA7uDmpTxULu7pZSkXGmaiFuIxEJP0oJwHEwu7GKucqsSRo2QQ71Vtz03DQe3",
-	"HgsLWSiY7F9ltsHaUP0ynnwrarmRb81QsMdXlQb54WnYLj/7yjePO1jjfrsd01SPFnZDDgoxa2TUsJ/a",
-	"XK3BWJIXI6vGRidrkn0mMieCEOdqmvoy5SnoiJgW7aJCpS0ocraKzLDQb7S5WlM5cKPVpsShXwWWTwtx",
-	"oQoy7eNM2wuN2K+w4hHcWwR3Q6rTQnNZb39nR4JYZ2cN78K9aYhKZHxDkWrR7TppoItX9iLPWGjbr2jk",
-	"DHC8beUD13fktrj5+JNT/0uH/rKjIsBlYpl/w3bqwg4oArm90Gg5hRNYC4Fd6LTohNVZ4N+h4VD8+Xs+",
-	"kEMtZ1gX9s/fiyRfCgfCGQkq0l2UhWdLewi0H4mcXMSRA/3JVsBMh7r8Bl6qIbXYqCIpe7nYhRE/OyNC",
-	"9WXwHJvyEKLebeS7AUXfcu3UGlbcDcXyYLAbquWJG4vlkROusSr+uFhXbv527loCUBmtLY9Ee4fVUCYe",
-	"4GM7OPg6wM8WX3lnSUOkpy8beRsZZ234p5mHwuWf/7kVtf78/bbVEXBMLxZZkc6zZSviB4+x3iOy/PVV",
-	"p9wx3tVcwPFz9L338Jr5VmKRNwBs76FuUJzrrfojs9NW595vvM3LJbDiNm8vsubNLiBvuOmHtft03d+y",
-	"z+v+aDtH/XW/Vb5d0nX9LDadPL9oft/duvDUeOqrW9IEUBQQww3O/jC2ZDUUsoxpLzN8ONnVR9CR85JM",
-	"FGOT5zSUNd71ehUv/3/Brdpd/W1lS05DT129LGPp28UhE6rcSumjHTTbMlJzh1AfHOQiK55cqltVDR9P",
-	"MW4BgTqJNjBdF2VPKjrJWRRXmCIsnj97ccapr4URclxACRyRFr78gBQkGoqxzDIK5yPJwTsDnRs3Euj+",
-	"pSQyJx1E/sb1dd74c29h9aArlC0Pxie4T4eaXkTdz+UDqXJSbQSZIzwwmnXnqNQAcKoxZRTFTh2gNlK8",
-	"VHVxz/ZE/NsnlMBMzdq9b+kfozR5G5dxmRi9CkldErP5UZqwKFA33sh3XMZyl3bGklWCm1k4ktgJvr9L",
-	"IfVGKMKdbRTryga+Xg3qWV86cNX4z7lqTlhdLSW4ZWTZmjCc1yEB4juk/mgRU3gCrWy8C5dYZMXasJu7",
-	"ia9ZIZKVShOUOcKeMjWi47S9ClxSk28oeIgGihPXJMXSX6YQUWWbTRevp8yqWMdnIzWWI+Gh4gobrbYq",
-	"vRCYSd5G35abnWVUUmRj4cCAndy8mZWeWo7j3fxdqMl5SYjPk6fWVBcfH4a34aN+/+H+o0cHDw4fHvYf",
-	"Pdq/KQJpx6KqSNCjNaFfVn2zWTVGp4MCsOJUw6ZZxWm7pNAgB64cxnee3mqA1S4sbDtZDaaNDNkXNyCG",
-	"W6eUFSIPi0X63Q0XOaj+ujFysxaNVa3WGgRXbQrTqvMIx+/WiHrVu6LxuKLjgmEcJeHoMKOknR6IOF/o",
-	"Hp1eAuBdaKSHoaY1sJ3IFRuyPZlAwjX/JWSSkKVAcpGhmGrHc5FsyPCgB6GZMPaveUCoGJ06HtOjB90n",
-	"ubyC8Whn66xAkrg39KBqwUT3cuqU9Lonx0/UbzDOyO1sz5frXh21f+gH3YpaqyPetqg3bMXpQp+40eAD",
-	"uqnscZK4J2Wpb/jry+p48NmTYDjUiBvTV35InlieKpX8BClZSFi76q0kVzfctVNpRzNzs9/YVTF8G7Ug",
-	"3Xg03jJ5uTFJGYVXvNxMyTF7N4Zd8MyrIwimcLP25oSOpmQvNJxO0E5qcpU4BHo6zgPm3/Vo44ixI7Qh",
-	"jKQ4KKwjxmaRUXX0c8WQ43CKtSlGLu+KXA9tlLXJL8IobEmlgOiRWAEvcEb+JeBpQGkisyhsmqjRVaoT",
-	"c0WNriJF3CsrEVFGGn9G+eIlygA2chSoHoLxJ8CK3yGOAnFeeqxG7nE81O2y3lLqKlYJ9yJ9j/VFy3aP",
-	"hFWqbKzuH/6LyWTCxnHf8Z/VLW5hiEZ1h1pRy016tLP3BVaukgtFjyp5UHzyq4sUfEr5T5UHn/sHQd4T",
-	"P6jlPHGHtXwnetqU6xQMMMxzCrpfffyZOeEFdX8Xn1dXlZ4/O3tJS/uVW1l6fsbrW/M+VQ15uyZsJPUc",
-	"6/2Pb0yxxuCi2mdhgOI6Zyp05r5ez9JO1ZgTst/z1VOaKjd9EaqEDT4efHwjq3YYmTt6dxjALFHjlLAw",
-	"575c/VjV3bHwalPFgy3wu/nj/J4lmLZmvO5dMCF4xDdf59DxY/f2Bl/hZ0F9h2Y86FX4jtpm+UEFYvwN",
-	"Rd5r4wtT/Mmnjm3h29vyOgRw8x/T36fcxNvywW0SIe9i1d+1UnhQt7wBbJmgvVyNTwBmgjiAeBWu30+l",
-	"cVcWmfoyNbeL3mG1bI1dyFdFuzTZpXOcpjO1o93Yqd+rPhWcQ0NmWGaVFy73uwdWXMkc4ksiAr53P1ED",
-	"5MRsjgNwXpIb8mCL3GSwjrvUMfZeCJyE/y4KFrV5u/TOtbBBsZSWhdfeHVlndypkwCjFaXNQ1K28sjdj",
-	"/ROE7VVl5juA/O+gRy00CSMNROo6XJPoixiZ8E1lvG65dAiJ+XfEZMf2clv2uNBPsXeIUmtF5d8nZ18i",
-	"e9ze8lX6r3ZLBCstrrt+M9oez96shZW6zT23eyr76SLIYW8IziSjk0NLtmutu1VUZespAjY0qRd2oXjk",
-	"7WMmK/DPW03L1zS+CVgFzXLeblbfvgrx1K1zfuv8QWnElg+HX+6PP6c3SYzO3PNTyMEl62jwRMJvCIvj",
-	"Khe3onfnMNue4qZd234BsfefoCroDtb424AW7ApXsLmEnmvND2bN6t22qsAt7uWfklOHjHfTVx73712Y",
-	"q6+XUA8dWOF0rNlv0zK/6tvehlufYF4Qyzjr2fY963+0VPhtJsGWhrGQWCcFnOzula7/vtMTTyDRyOOT",
-	"S9/2PVuG4mGcJ3RFsKyx7wsMWEAhsbNLuq/JHFl7lhYkcGAqtUooUhNMTozKhdUDlkIWAHhU0iODhfvP",
-	"OPIYvuAsavxQJRQHiGNEqCOP7S8WVLN9pVBQWpR1gdDctxWZ1IjZk8iD/hZYbLXbcZVxE4pZwLhx9gTO",
-	"0paFmBlbCKRG1C1cRi08cl9Y8Ll/Qt+w2y83kMpkhIUl2x6bwt3Law/E9rA5/tLecEWXS7OWuXk8l5/E",
-	"xrSDBFOxNjUokDt4f1e0N/ZMbokFU8qId4c9tD5kZH+d0LtFnMca73YF0sGv/hbt3Sw6NpWkDWa3cTlv",
-	"VWX4p6rxm+TLkYvwXt2kx/kSuH6h8iAMvHDR1QJLhyT5skuozgLrR96mQMj+WtgGik5/d/gHasfHdm48",
-	"TPDOLRBFUjuqUOB2lrUAXqSxhmazC4y+gasXM37Z0ebD/tF4Bb966GsbB4a6euU0VMcbkdm9HcprA7eE",
-	"TvFBE5Rc0ODCxOcQcmoxWt/hmaRaxJVPcQ/jDiY2U3nhAA0lDnc7PsKaTdCaJpDJHWhzhY5WB7EdIb1L",
-	"hesV+e8WLoWqN9M2x8eSPEdTvGcDn+l5LsdvFKJeLl1xnGpmlxXtZydf7p2cfFm6Zlk6e9T/8e//y/5+",
-	"X/wKEnvO95zYW6agd46IGKWA77FGU+QEQBqNsKnzfWCiki/Q46D+nfOxhBkn4zbkZ3AT+Is2Q23mCmys",
-	"lYQ4zFZrU/Fc2MRMFSruYLZIZrAro1VU6akwpieOcchcJWG/L3zci06E9N/COzJn8RJK4Y7NbGa0mCM7",
-	"HZOhF+oMHPT7vU+6aGajU2k7JA1LhKgYT0NIUOC8fPA5rLH0QDcFt7p5NZifTODpvkoxYA/qnyGu+ULD",
-	"NFTiqCDwgIMY7aJkGs3SJcVtLQs9c580iI0HO4qNfsaVkTSdsYoEtqvZmgnMOcuDZKfSA6K0U2Hej3V7",
-	"p6jkGxD7jhvRyaq5oBeSKjJQmC6qiTFGou0Os3cb+Pkwanm7K5ak48bb1ZX5qkckj7FSQW5mvTsMfPan",
-	"9zfc7/sIdA4wBl2oMwTTlxE+EPvSEMPj8AjLMKMdsAhvCIhObojJThMMyCZTAWZCTJRyYkl6xwGnTsbx",
-	"1QZvZEtnJ8C832do97tiH26ecTW/+pcVMX0XCtudx0hvZZtzghmHr7xzKHMliP8Gn2GYGQQHmlABYHdd",
-	"Nje2sr030Ymz1Q6/OPniBWIMOVMi3yz3bI1dUvov1eePKz9BQG91XWJiSB7GnCv23Bw/ebvQ66qlKNTe",
-	"t4O73AVIc12E9mqcee1INuz+1gWMQ/nlL9HCtek0NkJo72TUot7t7bwbuzoCnstC3eAJuBu88LOxmasK",
-	"ms5C20GJQ4RLMwAC9w60gY9fx0ok25anhI5OF9o6jCJ6QB2cUvv4CH1Y1oek47Nj6gjGW+WVOweHOEFh",
-	"nkmscEAMjxwY3HQDmBmkqY7KNNVbKM8+oBjbEnZxXrAZjHhv4iLAXZi1q9EHQhYyFXY14/cuwBh+IMQG",
-	"ZqvnshhP7/kKr/iyjXx3zudRgqYgogNjPWBL0VBfpFg1NtYKi8BVBKwaTxacX0nXccxyKNY9lTAKaRc5",
-	"FlVjlAWjuSmnwpTOFKGusRpbY0olCcLN2D00yeZKT1ptm1A+N1k6Xjbf47BBzsn4Don7WyePr6As4tDC",
-	"gfhZR35tIkokdzgAMPOmA08mgNtjQ5VImA0ol2QJat6KNTn4zYFivqmNyJIrUFkyz5cjLGK0+wnFj7uG",
-	"0onBIrQiqfjw/fazk9+JF/t98cN/u9876H3MZU7oaCcpcIlsSVrbUIcwJK70Cx9750xdCjs1V8L51g76",
-	"4leu9+fPX35+z7pBBJVUyvMf2nADrMAVTEC0AokHZdtuNCa396ipZ2dlnR6wSzGWIldYZGtRAEhyJEJY",
-	"Qda4pM8zRylODnUJbuLChTEwOSmrT9+aMdC67IQz4b6ZS2vX8RT/znjXVnfUvehq2XxyNhw5BcddFuum",
-	"wXRXUVBX20/t6IZ2UrvTCqd24+Kmdod1DXwhW36xqett41XL9WhYxJVda9j9qEaaVZJaIcLaJlSnHay/",
-	"X7xwkf2UPan4iTZxTeRu74P/p5uzzVd+8CRVl9KIkf7dIrlQiZiqXEVcdHaWIn79dyCofLelhWsTOdxw",
-	"Y7ETYgdq9cLAFlMCyXMrtK2tJtqk4gYEytnKnlAqc9vtkiV/xIbsb75eKqB9/BXdk+QDOBL9anzn6g7A",
-	"pWN3g8tkx8yOw+OvdhzeTeSz1kjmjWPNgIQ+C85ZxDDJa0s9i4WUKiLhSgJYqEmVPaxKnp6AVtLY3UKX",
-	"FOH2y7OYQNps1D3Ti5n8VNp0jQH63//B7RXIW58ftE8POq489POXj8VvxP3e/R++//d/2DtD0eb5y8+h",
-	"WHufHkHdcuLTNqEahKKs3722SHQbq+0WUwMylisKXSpNE8RMjknEGmF8EzVv9378x/965XB3sHFoG/NZ",
-	"1wlkkRtUpTy7SGdzTEglPOa2AulpWKKt2jRZyAw+Y2xF+hKq+4nY/VzOOfggGupyFcphmgmyGR4BVB5c",
-	"FIbTZp1zdSDKtQwgPfOFRpi8eAaJpA5CyaJrYAbSG34UQCqpDNZ1Zf2qqa7Qv79kbYLlbivvk2XCTXTb",
-	"g+Gp7ZjaLx98Cj2dJZVnz7HL59Bj7ZdT7vqM0ih9JvzuFa8KpQsIvnT6WDOMJ+0imDvAWrrIMeKQvxa2",
-	"AE/rFH0eEktcT5u9qK47O5UHDz5e7e3sd8fdgwcfi/ZUXZfI+lIbjXD5iP1rJsFgMMkmvdCNCevVPL41",
-	"ksI2Fvb1BZdnUqcTZYs1/sdXObBicv1EqN1gWMsXr08onNHArMCIjQ4jUmqmi5nUiOSJULSYQQmamV2X",
-	"y8PNVtGonXGM4SRKW3F6nmZpsdyeXomuXlAnpUWs9sNx2dHqN9WO4c6idVlf/nqjbwc2fm3xEye0pIlo",
-	"QzCC0xSRWqCxdUir2GpzDRGqQONJbcCgHjH4QHF/yE2KCwCYAjWwD7aON9cJoyYbHSRfvD7Z3uXh2xkh",
-	"VTUvDlasp1jZwkl5mTy/ZylJ8E8YGgIVe+7fv/+ojECB5/cgABvq/zu0VEZkQw5ttKIWUo08nW0BoI9j",
-	"ICQ8/+L1yYABfOGTyskRskQclYnFLQpLyEPx+G8P33bpHwflP167fwxW/tH+2+/+8Ovu1yvPO43l5mH0",
-	"I5hnI805yBOZbfI6urf0TgEA5Vfny5t1wjRpVYk1PBCRL2pdOWAliwjJbZVkwlVY4dXRyl1R535rpCvi",
-	"Bbco+e4RZ3ZwzrhPbgyDDRrfOO53z2R+x4xrPxKX71wmX6/8FORh71ZGPrhCVspRILwR8jHH4koYGU7f",
-	"L6zKJkc+OpM5Pb0mtfDsEFqR3t3bpnIUdoGrTuEZ7+8C441ce49Vf2+6zuotrN5qWxbjjzbdd+GH/X5T",
-	"3X5esDXXVOpuKdFmudndVp1eeDORYB5szSRInkExDuNQuc4aaXG035Hr4HwJuyupoj/dFkxIK6RA2DV8",
-	"BPIQtwHbnS0IT1sDNo/UBkVOuhFKQP1Sl0ALLbaRWuGrAxAxUuDNkiYj2mgLiVzsUC3SgMKNO5UJiW9k",
-	"149z45zAtmxEkhKo0NzYwqsjoHnIN6q6xCF9O2ga/2PpRL8lYZ8RVTiIljU/hxBaa145dcNYrYPDd4sj",
-	"85JvNLLQwNx7V6Wft4UHDYxhqK79hPkVZcQG9bwacrE5Rrqaa/QTpFmsLOoNyAvBy/87yRKIPAoYMqar",
-	"1FLigCetn7RM610R2AtOSNw5RXYXFAqSTdfjUGw+7cm6H6je8W7Q/7cJzlXXc4ngYws9VnkhU10st+yO",
-	"sjHtTt05J8U2uYhu+34P32zkc5lpjhmYl8V8d6kMXykA3GD7dhmqO83cfwRGznUhnQiBVt+KKhku6MLv",
-	"7OH/lCZT+IQM7cpjgQfz39KLYxcY5tAcpu7LEW9JIHdfhIEBytjLshI66IIyGleSyCSYYoWCq8SyfSxf",
-	"E61WzFRcZconf1OhqvGbkTVlyGIZr0DG123r0XGbp66XVuSfnUEnwd/Pqd2GMd9Cca1ksu+UYOw6vVHK",
-	"KLvYZt1vCYZQ8ubtbvXwqlu51k/dPcxZ6O7EQ16T+3eZJF9wYrpLbr9ne+GVsIt0s3JX3DZjbt1l0GCD",
-	"LLnNPSvcdyL4TnzBFRBq47tFdaqf7aK5A6J4HQQAYdUkaJvUOk8KqRXtFRYgoC5lpxdcb1W9OXpv112Y",
-	"w/W+Lr/tyTu8kW5cgcoNdRPVVqrrywitxkomION9gVfom1vQqrvztkx0grffEydZEyNRWwcKJT0qyw9z",
-	"eep6L7dPxN14hQdHu4nNv+a6QTUsvlwpUahrGixVxT/iamFFbjKIkMMw3BxY01jNC1HI80hkqeZEJYmF",
-	"VvI8lRdK5KpY5JoLyVUtU1WbVmiv/+NweN3vd+G/n8B/PoX/nMB/nsDD/afD4fXDp1//utEU/xrUh1vC",
-	"R91Cxr8NJNuaWIHghUARgrRjswCh03hIMbaMMrpxiVq6fYjJWteZHZv5LiZzeL2pAxxT8zytGueq6Imz",
-	"qbnSGEiEiK4YiDmWmjG2saAv5o9umQxDPUaumBhPpCJtNh4D+OyWIg7kBo/QhZ+bbA0/wASD1BYYpEr3",
-	"eZaOYapTk44VFra0FssY0oZDSjEYDDFbv0xloHMVZi+ItjMsHB4c+GJHEGwlnvnCqGjpdLieHtdR5ord",
-	"7q6J8yUFh5hF3lVLZRFkswHzx6rCCpo4mO1H1Mu6rOedKD5l/F2MJoaB4uyZ2BNBed/t8htxnmpYqU5P",
-	"eKaOL3MzV2l1AQs2cAOB4a4Ayw9OkEitX47D/n3umKzJZa/3LNp+cEiH/cP1b7Ell2ohiOcKEoXNovnw",
-	"ijYOKOJNi5yZevuk03V4SvcPNqXZNIMrOeZwByLaV1MDi4CVujChfmFVydyOMDRBu3RXyhhme5xcJGkh",
-	"ilymGV655kqrvMlrYWZlgwKQ3CEmqjADEZMLYDBc9Pv3x2h/xn9y2m+5WfwGTJtf6A31Y3J/kNegfLdi",
-	"pXK0QFQXl7QWDzWNR2boFFcZT5uGxEjAjursgjJ7h3rlnozujkOXNHG4K0k0l2vkgTQy1VzpuzTdn0ur",
-	"Mq5ZvRGZGfr91L18S6TaKiJfc8iv3RJk+Dm9HMaBNnjdCiPeKDUH0p+lxOoSCuUEnghzgnIzQYClcAsS",
-	"Od5e1rojE9Zu4sBc5nKmCpVvtcCv/NvwqUl3KWFCDcA3TeMo8oUeO8mtdl/kC1Va4ansgkAAkhnV0JZa",
-	"7Ef9ft+tCDBo0PPwfZMlyhb8AoL7wRo3X1uXDlx7F9DDEJP7RhCtCnibN7SVm+BXNaB8T3iVAYZLFsSu",
-	"bkoCrZ6Rd8APfycs8Bks9o5J4WuClG0DtZwxXI7zySTqMiUjQVuLH//xn8R+p4bn4VKE/NHaFb7Dqkyt",
-	"QQ6DAuSU2khN+0OrEAzHWLWFkIsrhrOFlQhhx8O+1+74q/CIs28fOssMhgGtQwPxRAliFXIigsSxA0yS",
-	"yiVincGkEHcHWgtz2kFBROzJpQ+tqwT4RiLOR/abhcxVwt9lBh8HrkEO5J2pwN3W9Vtbzx1z/QSpYREL",
-	"XQzsiIJhk+su4so+HmYptcECYA6XPSI3nhXTEPmlQ2X+MUAaFkNC8HCiMhiHUZNJOk5RYl2SwNCOJczx",
-	"HP4zhv/glKEEUbzsx1RGB6fMbUAANUKiRIz0ha4JKqYL2RiTFKuOZsswSsBtrd+IWsxx1PJLjwb81Zwd",
-	"CQwISA0IpBW1LlpRa9nf0oBepbozHkz16bNgaNVfggjllZ/O/KCrPzw3q8+e2dNyPtWfjleefLry5GTl",
-	"yeOVJ79defIf+8gRgrvuJwAS3rWAaSVfbkPYNlaMR07lv6BE79QVJ21PfAEHCk5TSXgJz1ICKcOXbWed",
-	"rjgKhbzVF26HHr3eTufPtaux2ozvRBX0tQIBDFJJ6bBFcPD9udoZ6WlXUOu6TNIEbIe7RAVG/Luukkew",
-	"WVsrlLUqGZvxxQLIkQrCiHMa8uaVM48q6Ynh5lfm2nSbIf2Gp2KxSJPViF/ZnRx3n3797Sdvu+Gfh7v8",
-	"uX/wttHG+IVuTvpDiBhMRAFLbCRU76In4tnF3nPg7Av+3z/M57Ov45pNlPX0NRbR/0P3//j1t/vR/TXj",
-	"+VLmqdRj9QKuix3zxr/CMMr9PfvHgzji2tjUmpgs9DhMN/M37dnjgQAjs4jn5krlUL7Stq87AOXV/+H7",
-	"mbxuX0fiejRLdeeP4326b/FPbMbOZJZVsono1h3qSijKEXdB1ykIC6LNXMVM6Hbf2+/1e/1O2L34tRjv",
-	"//D9dSPw37Z178f7W764Ji+0djxcmdV+C5tuIuovS45QC6HFEkHElUCKKvG4KcOfeVIlorahVmEoF8yl",
-	"tcCwqtmSm65yHt0r+pD/eorf09jLYps/wUW3HuvvNhF+74q6t1Wt8PUJx0k6cVEM86b9/9VjzAfs//B9",
-	"e4L2QlBeON2vs8f/2PX+wZaagPKD5SMDPFSJ3XQxityYIqjPxLgLO45n+5XcxvUc0uMW8U2gVTevPVys",
-	"3/3q8Xdk7y6N5E7D8FX/ySxzB8nc26ZrNy3ineHHlQADK1Jhrsos9hK3VozNTFlGiNzKVxMIDMwcb45G",
-	"dGS7mvhdPULhlm6AFaiLKlsGJYXE9dMVqWF3gK9q32hhmMH9wG860LtazPq5wtLWcIFSSGWDvz2wrFzW",
-	"OPu2p25l0ysNrU7nBovVyoFevSVTnRYp5JYA/DKVtB0bXaR6keqLWLRP4GkYKxKOKLwcuSGiRP5++1vS",
-	"N/nMN1MhmKDJ2rxuESh2G0IKp729Ea+6tzcoA9UudtjaOym6swYk0luLrkJMr+3ry20GCv6M0+8rr0WC",
-	"nEmi72PMSxwmUBJuVRugH/zfBoH01vfjTxqMvg3Td/GowTY3EdJXmPl/InWSJgxMsQsRQQEbtSYnGOeh",
-	"HKbAeGqMXYfzTbbcjc0wBAM4Qtf4H2bymmECCM4AcijzNVaMTOYXyhYCXyl9k4XMGAsBk2uxNUFY5Qud",
-	"oGUntWLsViuU8BidG7SHUnXYyUpvikbhAbKjfI/Yh32TzuekvNA1LeBaPxJqNi+WYbZEYxrbbCTPwVq5",
-	"2te//c/f/er0yXcloOD4TXcss/ECC2eXiWorgm3T6HadvgfBuOlYfOVfrB+LsonKPNdShqe7yBMyb8P6",
-	"k9KYr/lcSVt0ySZsmYBsD6wD13/s9x7E4se//3/AX8s/HsT8cyWZBlPghhqNAiRj1LFx0UTIVoT2cTZT",
-	"aSKFKoTMepH4695Qn0xzM5OFuch74lPx8OGhaB/0+wcdcbD/oNNzhgo3Nuhwfw+U/x/+lWzicqhX7ReB",
-	"ceIaDBJs5Zfj3FjrSjwVRmTmoo1/DfXZ445Hr4fHlWl0IoFlGXC+9D0kuF9pcfb4iLPU5VCX9GQmjn2g",
-	"RxIpjqAFvA2Ez6gMo22gfljsqWFkcJ9sr45Uwqtve64T5lEE3RJQtcvI9xYYu5jB2OQ5Bswr4YL7BeL5",
-	"uqJpQ732CAk5M+ioNhbT9wkvT5sKywEHLeC2SC2mMps0sameeILLQbolIQZhnFF5KK1ItV+OUfkY3EuZ",
-	"NSsZWpP0GjOHbIlLA3g6SJwjMxnNlNSxaNc9NuRH6QzElzJvL4Fs/v0ffvjXH77/7v/7/Xd/bB/823/v",
-	"ROLf/jstC3pYYDqZJroRQDYQiazhdWRndZhC3IWhLvcvEmmhclxW3CApHBqOyBXcFO1S6XYL82//ncph",
-	"AOQiM2xli3SGrUCRGG00TQrydp+aXKxOk4/SULuzhCe5HCkQN7qVrrQn8bPHVZgbTcn+zB/oX/z3Af7v",
-	"0j9f8t/03OL/MkpOZUu2FLY9F/uMhuD/fqYvz77Ji7+pPVv5+6Dho/9Ye7by98pHlQcMyuP/fgXzejl5",
-	"gbMKOe/LuZe/d4L+dVyhpGjBPCFiduI08kmaZU3FNUg1tgAEtAUagoO2ehu1qjynyRFfd1dXP4gqXW+8",
-	"l3h1blPjZ9MSQbTfJFVZUsZjl9HdvG7vdcFqgdYKEbUc726+DrRSCUVAuouvMJjk3ny5tKV2IZDE/dxX",
-	"2hT8JaSyX6gEbOb4Mo2iinEl4mDWA0Ft01p5jFhkBlQcsyc4Vk7cHwgJdyBnzl2Zskm42IxWIlEXuYIx",
-	"w7dKJVBbEzbgEYC65gi+audSW5gCxQPi/QS79bDf8SFypTYU2DAOoiaiXCU0D8dyO41zN3CM9wPrsPHL",
-	"mzPvueXVY4hxLONFnhbLM5gJg4crmav8eFFMV+k4hscmT/+EktFAfIrvku47xghHF1MpMBTRDiqBkpGI",
-	"2RqECO3gSoorUc7wBgbHclgE3lJUyDY1EIEZX3fdbLsUkshYbLgVqFvhkEotYloU89bbt+h1npjVKWH/",
-	"EJCnckLytWEAKAwe73x5bnJ2xTRgIlsMJrFDLSs/r5SUjsiRQ3VUWeAMJUAhx2M1L6Qeq6EmGG2qYmMV",
-	"rJLTJwmLk5qKxDwzBQgWWG4nLINj8eQt9BttruDW+PyYQ46xSakrYbdDPdQfffQkAEsWVi4tRfOilNv7",
-	"6CNx7McnQKc0szkCsQdzQcfeJL1Y5CoRY9j2PJUeWzn3EH1WwLHk4Jb54jxL7VQl4mKRJhITBLCtct1p",
-	"cWBuBVtcqPTHBUipHDUOT1ggPHv5CrnYUM9zNVaJwjadwVQrj+3MSB4e8ZmDdhnNmS2qVCVuqGlDubgu",
-	"r3Kp4+RqrqSLbgfBzFnDYlzdv/orcWL0pdL4bKi7BFJH1xRDDORKWC3fqNEYe32duqceaasdk4I6EN6I",
-	"FQODF0JmV7hheVoUHkeLxEx1LRHi26bXvpylzESSXiDVCtGOD/oHH3f797v9g9f9Twb9/qDf75Hl6W/j",
-	"zkC8Mra4yNXZ58/dKZmloFEhspeNhDXQDN1r+ELCKF+2hPWagALO0f2JRVXdj0ziJZBmhcp70NIxfW6V",
-	"LjBFgKL649ccN/a3MTSYoe45RoQgv0CWS7o96H3cOcJ1EZmScw9CFh/cHzx4NPi4H3eCDBQeM1KRzwwY",
-	"YLKFljMs/Sf4+MF2IXjZuUmWkTjs90X8zULlywFsYky/4YMy7qQH212a1Cxh6NAyTfHObAOrcRG+EYWL",
-	"2w7uPfjDBPF72xOnhvI84PzO50onXVQzS7B3yWQOnAN2BOPY/fCVSqhVsmaQo4uvUCviNIn3oKJeTBkU",
-	"8EkiC3lObgUzt1htWoiDPz64L7piH3aet32cpUoXkfhreSnPkMOKVBMgacRbXkzVzG05LgnUb4ZVQyaZ",
-	"JkoOECkH8YQkb3pqRYzSQexLJjJGX1lZDoYE75WOHfeyNcARQDQMrcHcaFky2zWtmYx1QQtJGRqeV2Kt",
-	"6aiCVBUB4SqV0FcdMcVdKYckixin+hmuN53mSaphZs+ePHnSffjgUJCpyfaIIzBVIsC/+Ex+hnWONH6z",
-	"ZIqmWCzcIg9njyGLMGoKFsAfK9EBjl1HIFKKqqmMiiC6sPLcmKKDowdTV+wsIBLPY6pVhjNiiUqQPOFO",
-	"jeALh06KhfDHBnFrIFDcijt42k99WCc3BYvEFRgliPdZhoSGlgSyZcD6jQleDmMlsDdH5Xhd5jBah1CF",
-	"PDkxY7rW/ZqRLHCujph6rbBTs6CGKGcqvdAmV24yiBeVGPwWZhlx9GgmC5ULrndnhUwS/oK2Hpm7mQSS",
-	"hY2cTGAjvrNs5KxTeOO7opq5QkoqecdA7IvCiI8PxfHZybNnIlNFoXIbMTsnBtkDUWoE/xnAf7pxRFOS",
-	"OapJbHygT4G+8NuyFl7JqsCm8IVOsRYWtMypodBakB0qc8Xbn7i7DpxcdqiPRZbagqlRanGRmytPaZQV",
-	"1Y5/++Q1Ftwn7gcDdk/4xo47WKAe9xW571xewMqB0SjVgkppLwew2DlR5YAVm1i04V1h0z+pIxIocUDo",
-	"I63og1xRF9WNDh4zWMjxIrcm56jkOTAEs7DYPYijWl0XI36lkrFJV0VukVnC250oMMlhHhFedtblQ+HL",
-	"+OYRzYJOBKckFWpmo2p35WZ9pq6LE3pINTPiqbSjmckhNUmU7/1O2hfwsNMTv1dq7lbK0wPP9TeVXq6m",
-	"aYYUWDYqMFFlgRU3cC1djDXmrsTBRnboCOLnQasDtMWDfRTXn6vbXqgjx0rbcWXvWbRBCuYjjUYyCwtt",
-	"xNxkGcmR0AeeuGP3c2qFmctvIHC1DO6OX8kL5VbsCKmnmDJ5pWPlgNqIg9uFwnhv/Bdp3JQAyBuIBXIP",
-	"+32keyR6ImsfQpLmnE+ONwqWbkKtvVZzGKjZRZvU6wyjvF4K61GgNNgO8HXIljGZivzJwvOBQ/q8KolA",
-	"Y6VKFXLCcSZzFZ5k2leQb5wIRFmZLO2sJNJ5SznxTM8JQGlUuuDZEHdD3W2oSd+A3Y5FbhaFYivIDorm",
-	"MafWYRq6QsPDUDs8b+pnAAP5jv4Q3+EWfkfChRXfsWjy3VB/1+12K/8fPgr1V/FdJYv1O0EyGzF/ZthR",
-	"Fai/NJ67WtEdaIWKeJWsX3BfoXYsvhPPn704I+EsZ0r4rqLftbUh2YakoI4fkhMjWTcMaMdGYQsRD7uk",
-	"wRI3EY9iFIJ3ali6sQourKAoEKPMRAyYlGrE6HeiGs2vquyL70AltYWcTHAb4KElhEXCW41KKau2rgjQ",
-	"GMgudpuZi/ZccY4uK9UyH0/BPnbzKtx2xmTNEN9VU8NhuCg04+7BYBf2hi5QHyDVE3EaKi1AZ0ONlcxz",
-	"kykmaae6yzEmjAyELOsZeXkcls3jXDEND3VaUO0PNKQiFVY+iCqhccEa+5Z4EdJiqGGR00tsSldsK75F",
-	"dwg4Zx2NoD3xiubZJo0cagokspB0w7nl4Nw+4LRuqTEzxnMFl3cdHtyh5ioPPmUwzcnSU6bdi/amfO9O",
-	"z693yUoz5P24jMh1SOaBUZEBRTPGZ6E0UPRQNxizBivIAB99BNKt0eqjj9iXNkOPYzIjh72bN8pHGRae",
-	"8rAD5H3MiScXXJ7Zekka3nZmnEwVCkvnDfXLudLHr54JZxt0uIguI1oyvy5nDopCaTYciD987Qr+8Uqg",
-	"vmkKtpCg0qtyNWgy5znQbwxlSG0BS33s0koiMZMZ2D/gSDo9A93MlwZqzPvU/sP+/hGpSWkSIASYBdCj",
-	"Wybskd6+3xPx3lTJrJj+CcTPPaCqJf1zpoo8HVu2POyZudJynvaWcpbFQ42mJG1can/sVg1XoeOuwCfo",
-	"YnX3HTpccRc1GnYeHT54KOa5Oc/UDPSlOXkSUqP3+Omv/85iRVkS5YY6fkXPnccv1TTVFPwokYixBxuz",
-	"WYnMqJOJQggF0kxQVpakcIIhg57CQYIRffyov0+/YUoTkj+DuZPVA7IdUKzb8zfc3sFerdhiOx62hi2/",
-	"pSii4PedI+r95OxLMVZZhud3L0u1snssVuD/KP5rbLLFjB/BnugYG9zvgl0iEfPp0mLVB2gBJXUY2lTJ",
-	"ROEy4+P9jsvR4I4e7vmcQx5OKSHCeKhrhyOwKu645kgaImUjEvFcFtNBmpDCFdMgBs8SNZubQunxsvt7",
-	"tUR1goJyWDefpZaT/VA2DJceGyL7aWpdvExOuhznN8Z7TGov3PEQdqkLeR2Jqxx99ss5J2ixMhDkDclc",
-	"gZB3RMTjkDPAVZxlXW7tHJS1XMk3VkhCC2G/vhOZ2w7euVChX96Jl0MNZy4iLAw6tvQGCL25QmkzLddI",
-	"vFFLtD8cHhwAL3/Q75M1Ghj2UA99KXM6SsOWv3diVmpGacJI0hQEewEDKUxoHcgMkPBnLEGlvpCftzFh",
-	"Q4E5kJi+s5CTwcJJnfHfdNkc0n0GyStShMtnNJsyXVA5GhuQZb/BnDJmE6ey4IBry9cLXwZoHj1fQJ0n",
-	"WHkemy2BuwE+AsaJrmAhC/GgD1YeMnoelTApGLtBBkPH/WpS54UqrHiA5leLuDSdnpu11BZkh8IEy8OW",
-	"hIDTRsIuxmNlUc3B/YlY26Z6Pg5N45uFKaS7FvmwspnFlVF68vqpSHI5KYYa/6ebqmLSBZeOnKfdXBYK",
-	"F6tLX9tu/2PRpvCoMhyDpfNUX4AeG8MSPyfDAHM8DpMupsoSJg6eCL6DrDcMXaWJypYobnQGYUNdbg4v",
-	"PNojKL6Z/gl0/uC1UzWTqaYQZWSFQ82LaNFLHZESCrQyNgtdqKT+vVXQDe2pFQtdpBmH7BBlpJZt7OCO",
-	"YVNA+f0r9CchVyaQFHiK/1RHV7+hZ9y2U+h6Q/1Kso8KX8d/MRng8eTSH/GpKvJl93hSqDymErwYrlZm",
-	"bNuhdiomrTTvGR1SRzH+bWdkI4mBZknfc2a/dKyvcvA6yKnIcoqiEhiInMmlJ479klcxNNJAdIBeef1x",
-	"BfE8YE018dotA57cucrh0oZxD8S5mqY6EVpwGACcV6IcdF8QnpHmU5UW7sCTZRB4/oXSHBg0NolyJ46s",
-	"/kLpxaxkNbUIGc7k0wyrjD2RfViCR1IHtkPRdtKygQMEPV0oEv9ZrOnyOEzeAcbr/xrqqrEZ20kLNpeK",
-	"mZxzOmG28JIvC31p4PaAEXlMAR+1YcOow//0TyJ2cT1wn+7vXZdP3ROIc/jxP/3TUOPDA3q6XG3hP/Iv",
-	"5VP35I8HwbMDdEVz/IT//iA+8vFTh/OMf3lqFvkrzO18UD5LL9Wr5/FRaR2lHN14v3tg+R1Irt0/QOPm",
-	"fvd+5el9fHpQffeA3j3tHtp4qP3j00N8fNjdD18+3KeG+9dhu/3r+Ij4vK0BFvE7XN18xTHPbZTFzuGN",
-	"mvJOyx9WP4+PfBjHXLGeG//5n7m1F4usSOcZFEOI//w9P3ycXqaJilnzuEpzJiEUjsmfiaeXjgFVD8Gz",
-	"8xSqNDD84MKqiscATod1Zk8Lu1PA69DxK2/6oCdDzbN0L9BfTy6VLk6gYXh2Av4UOKlxZ7DigpiiPx8I",
-	"fqjJD+Z8M6VwNJZaqBmFipLugTpYhUPYq7QAKf2SazDP4NKuuBXwNZkkfMiwCUQSkt6CfZ5LPZ56bzNm",
-	"3GTmYojJKLkcu5rHeMPu9w56fap8FTAfuu06qB68dqgUIpaMPZtPQLihP0opiLYdqu5hVnIsMB5AsCDO",
-	"hTUCCRFmgvzKxRzG2A1zsjIIQlAMBDRCLcYQFZ1PRrlNIOcLxoKXkUqYXCJRSkSdyt4FjVADMeDLiaBq",
-	"ILTOCbcx6Z4RR0rAt5Ul4Nxbx5HdQjA0r8VQU5aYMSpNu7UAEh8Ira4cq4QOZgpdg0e1S0BYpSy+i/zf",
-	"QSrAzsRVDAq34BUgFWclbgJSgaGEWCqyCUmlOonG0ZE3sjpEGiHWKLQeIJQrlQcFZRFThp3W9yxHpQFh",
-	"4OuCAxMcxXDdflesIcSYjalRVzjGp93E3yykLsJ9pwqNFO/mwiAgFDXLzDes3tMrdnFe8O/g1uHVWmQg",
-	"2MVu0H7RyzLulUbGJs8pFiFmOkKvKwfUkZM2xhXjz5y/Klx1ohWKapSZpxRad1ozJ8m4dUBHt4d6xDgW",
-	"uMu1eHbypTC5ODn5kuIHwvVdC5MjtLlio3xaVCkMyDxFLwn0iKtNMTRE7iKXV4FA54YJvM0dLF6FMsJi",
-	"sxbpLVZudm2Oh2aHQ4d9P1jmkxJg5qIwkFLdDy3xIVFR7OVcpnD+oK0H/T7F06AODq+AlUJm6Rs1gJZK",
-	"aKE//7P4xLls2QnppMs2u4/KbZSUvpOTRbLTc/wVGs/kElYGzyGM3XPPcuPJAtKAlAS9NNdA8dVScS/M",
-	"FVQ61H9HFBnh7JCtVTYUgLIC6iNe8+rlGTtjF9ruje0l6BAUaXG60Cf20t2LMBcYv6w5mSj8xPH6dlyo",
-	"64LaAU00qgfLWF+JpdOr9R6XjnmKUQ3akpapHUe9i8ZaMvK6UkdGnCYdrkk1a1a40Ae7pfpKYY/DVmgI",
-	"aHWO3O1R16lEoFLNcNqNchEKRINQ+iExp4e1rmJyL7tIgxUZScQEsNb0TUV6orUqBageDgHNf6tyFanL",
-	"7hLEKRhLVhI8OLiTEXIfNtdyBNlAxPLcXKqRtMvZvDAkvgIW6FX4yNG2WRQ2TdSIQAR5jxwLH7nK1TGB",
-	"HpGNZlE4768LGEFK/CrNVRds5bJIzzO1ch+ioojXIFnb+IqCdsyERVgr2l4oWNX6OgHlhprfVDZofWCv",
-	"Q8MmibtcTjdBVRXvPFOIea4oNhw/Ee3fGjdU1y2XPQmDY5zUAY2MDVcAxQacxfMpSjleoMeZgKDvwjyB",
-	"jcZPwFAZl4zOt59a4VwM93v7vb7n4vd7/d79Tk98BjaM1AqJCzmgexMiBqjKrdMPYvr1D68jMcSUvGHr",
-	"a7hpy1d90RAKcQxJ00VyjNAyhVI+CEDP9FOTj1Uvk7YYhQ7HGCNCYqPVy8lA/OFbCAd/G4lvaQyu/7df",
-	"+zXA2+OMja3AagicDlrJkF9bti5opyoRCDbcM3Q27vf6sLIzEbsJDTDsIqbzAVQtYoTtdVe+xGgpSCuA",
-	"L0DNt2amgmJ+PvU4RguvYIP+gmJnVTYR7ZVXB6IPnn1pK1M66B/0u/sHQJrE23viM8Pahbv/QdalG4Qs",
-	"rt4fERhhfRJaYapkeOTL8SLXxjmDm2JKl0usrpEpxRyJhgGlS/J+1gQoDAQYyyxzgUrOdwb6ym+fvIam",
-	"/e32bZq8jemNFcuoiwcKtOAj77tk7unsKzR41L2PvIv1Bi8zpXmJBv8vDWi1c7nOBwvNrHikuZHKpGh/",
-	"atFWe9/SP0awGAMWbHCYEp20OEAgtKuagBA4Wfe+Lf94uxeEHOydy2I8jQfCwhrJzMtTJMmEYlRExiwX",
-	"XQ5bUo1EwO5Jze2WMZi2NAAGYnsY7QkgjClVDeKbwq35CA3W8AIeUihhGvx7RLsNj/galDqJyMnq7mgP",
-	"FEPZewgJHdNfIJw3SPcs1DvplaUo0Im8n3ri3C7tLSRkju8kyZair4urdKw6pHM7SQ0vDwrpQ9my7Rxj",
-	"h3vcgwsst7UbYp6bWWpVUin1IcW87ipMFNw2CcyGOHDFWeg7OXJhBfdszQ/gxpvmJCMiWXsxEaDgXc4V",
-	"jcAVhZGFSFIrKftIr6YmsyI2cwg32tksCV6GbsWZsQ4BnGQrdOIKwpax4I9iqHOJQP8EhQhpsQYTQnxQ",
-	"HDEqphJmukv0fsCR5xSGHJrIlUVDTzuhXFEI/LZRaEDFUJUUj3cMe67vFQKLLKOh21m8cPhDgnQH/2tb",
-	"avYbUi4QYqZcyEs3GuLsc5lbREjECRCauWi7BQooxSlv8B4s78nZl+SiRL8ZkBZyagyo04W7OdCe7II/",
-	"iSn7oFqpHVUGjltOP8FGEzVOZ6gGzWbS+ZPhqsyWJOiizavZyoUiRmnF0MaZ3RI1VxinZzSHNCxV0Rk0",
-	"cUQuKIuRpEEcIQb/xuQ1uPKxonhZGl0mRMBnCR7NnqjHurKKYoP4SiS2OwjbwzOHxIbCbUVJJiHTpWjs",
-	"nDPiFH8ncGKEJCnbOtUsyPpo/PNluUYUye/SHfxVWAvu2hAL5ZI6wi/uUZy9aPPFwVkmpCV1gr7LK4Dl",
-	"BuhepAkJY3iFzI1NS8d4EMrpUh5EG2VGf10rjXeRRwxz+RK8CJB21svSsdKsCx3Pgal3D3r9yAX/wvVg",
-	"U05zev7s5MlnZ08or40/hLw1qtTQKj9vRa1FnnGOmx3s7V1dXfUk/twz+cUef2v3uEX8BgvYF5mqpr4R",
-	"WifVIW/t9/hF9gm1Bi0U1Al3c4pZgi5YBv59oZoAMpmsDwCDHWKI6QCRv4zM++ml6onP0LTkAmggJ9dT",
-	"+bOkNWj9VhW/465qMDQHfYR45Frz8M8wcObvOJuSeOJNGZzUBeUJ1uaBw4TVeNDvr2vGj2vvGZti8K6o",
-	"pFi2Bn/4GiE+ZjJfAv4GXMwKQRYLeYF57n7mlkoqu9CjtYv8KsfsFrWwVMZJXTvqFZQlVl/fI3pFibSg",
-	"KACjQVjQqrgy+Rs2OTmFpMgXlgtVrOzJCx7ZjXuC9pl5JtPabtTTWFcWnnt4H0sfLNvMz2PtJoQBX2t3",
-	"AjRcp9V6OSnQc0BIOF+kIOljFvUWZM/N7Ub2bpA7LHQ49Pu9fT/8SPzH4xfP38f6vw6lyU1LT1F4W/IY",
-	"pSvs11+sLjOUlgQDHhd5jhN80L8/1CX2UH1XyC0Vc5CMpEy7OGBnvq8Uc3/xssJ0OuFgCwcc5ipzJoXE",
-	"oTe4Qk80SBxJuxJG0SkjPMqWLQrfBl2IZGgIHI1DrU2RjpVlOA9wlqLuAeRh4yBCFQblQxUikYI7YBkx",
-	"XAkJ3Jm8WHP2T2lX3iM7PkXjtbK2iV6xe1EYWs9b0yd8df/mr85oab/Q8lKmaIXZSNrlyDeQ9eX+Hurr",
-	"awn7o48wfX7w0UcrbncwtVHEL4q8x9AOiNU2Al1S2YIyiSIhC9JgvFsJvCBgC6J46lhQHQkI9MNoDZf5",
-	"nKTJABvEQHxKwAuqGaFkxSmoRMiUjqGDdyDdHAkPzA4jYECxc+DhkzRxvbO2D0+Huk3WRZxw7I9tmnTC",
-	"RGiQT30cH2b0GlAXtcqbqPUMQ/xxkcKiKxYLXcGV1EK90lWSG7RoBq1oS0Jl5Ie3UXNrwQpUmgwgHj4+",
-	"bIB02Nhamqxrq6mG1LrGkCrqDTUibew3IG18/R4PP+7Wc7P2rgLqw1N/uM2p/1QmDvkDP9m/+ZMvtOTs",
-	"I5XQR1vwiacmP0+TRCEOyOHBo5u/eG3MC6mXPDr7M/Exz7noqNTLscFNEpx8MLEiFQbsjfJRAF9kJZrf",
-	"1wtw/AtR62apLhkh/bwVJ6xih9zEGSkyqcYUTZ64nPeKNoiJwBwez6HEWpwvhxoS4oMfe+Ipp22Ozew8",
-	"1ew4P/7s8ZGIQbJDYSHVbEInrleYeKi9WT2iYo9GV0fQE5CUaLniTpmfMfaQEaJtlYLgZ8qsbQkfveIX",
-	"jMxVgXDVGSDaomhIXh3qajqptGWya2Om6pGz6/t8zaGuJoVSaRCcc6Vp8Eb0ypxMzO7HLlD0GmruoEyk",
-	"XOHjMGXa0O3YeKXq1nZsJwQ8Xcc0y/pdd9cmmTrutElfgWO7Jit1VNa1WRbz2K5RX88EGqye6Scyz1Jl",
-	"i+oBiMpjg3VLGsYAB6wygG0AfVf7fy6Lht7V9Q29F+YO+n7lctHX9bJ6L/v6XQ/6ARzWwY13dNS8QeXp",
-	"2SvToFvv9UZHAoMj3HSlAwQI2lV97doPl/udX+4nVMYhtWBjDO5uvn3X3d3hjeuQ/G+6ytGF+h7uc8wp",
-	"oAydCbibn5HnxWNQGT1WAcaC0hcpg8skBCZKT0Zs5+SYvNRyznquXEtrtF5cwtXb54YjRlEFj3+C87VO",
-	"XKaaxL/wI9U/vPmLz0zxFItC/IWewWPaCiLRtLCE5MYB5BiK6Gp+vu/TeWvrw0qeQO2MuuQ40BCcN54B",
-	"HUsYAafYYx4512pF8ZyzAELtI7UhyNWmk7lGx/8lHM+bFFpcJvvhiP4CjmhAemVUfHAi+XBtq+vWTuiG",
-	"E1kCXcA05sa+k1WQitVYDs3Hdyk7tPDI00HwiKtp5BHATZ5eYI2LIGabb1KH8RqJLNWUci9SzGuNXTMj",
-	"M4GEavjGN+SvWVeqBsOhCvDwp9rJJT1xyq3XhoGLkxAU+dL/BRolhpw48EQO/2i7wDFsa6gRmx5DHoxW",
-	"3hxeQAgqJ5BjzQ7UBth5hmaCDvMjvzyccR3PyRYw8mFY1CFHd5lJEM7CCuNQY3Co9GFUPqIp8pnLbrYl",
-	"IBDaO12EKqbO2cVc5Vbh5NEU5oYGXlxbb6YCRMNrPAA/BdeRq/xOQdXYm8kc0ocbBytKQk4wvqcYanJN",
-	"SLQuUIaLcsWCe+Klq8TNjhZm/HSipjLVmBF1zuOHOP7D/qOIkuaYtEepHfHXnNp+ihl17cODAw4LO+ek",
-	"SpbwStADf8FCe0cecHSoafjPTn4nXuz3odbAwUEnYpNGgDMK2KFc5QquJY4Iwaz1EVNVPKAxEMVRsWDc",
-	"SXzqSUxwPi+XR+CPLcINxEzHduQhCkdaXcUDIQuRKWmdcRy/YYQ/Pgcyg8dLagdSotwvPq0lHngHwAGg",
-	"LZtJ6UeiQso0FAxgcM3CKcjgAFUn4YaAWbFWMLiza6rDo0g1lauwI0hpD6dRQbgNXoxp+QiAlHcJwk0i",
-	"t0Udl9/GI6CewHw2QvTokdKJHWmlkhEFNsUDngwMt8IGYAHgQxelB9ChHCcCw5umF1P4m/ZTyxxdHPAL",
-	"dgRzwa+hwyPO9hMOq4rGwiOIhBRWgYhRcCEuh5tyNV1SOBXF/CKEXsxflQE9uMidJkmHmPoTd1HsLOsE",
-	"GBS/V1D8bUfpCK/oT02y3EIw4qA3usuwuj0MkAsPtZ7fx7uRPlOtwQF1QADYLR/UJw5g2Z7fpxQfzcWG",
-	"qfKHuEz5fgKekssx3EVWzYvFDAWp7SQzv5henqriaRf5Qr1dkQz3fxrFLSw1yBki0N5zM15TmeqVLKbu",
-	"oLuPIxHXRA0sRludYrQpXOB/MKm0v4VUemL0JONizIf7W4zplVxmRiavjXku8wtF3z3YZgHsYk6RwS9U",
-	"ksrXyzl9fHCwzcccTQWC7BNdgDf6L1TufkI3UFhqRnNFlEhIJ8c6mg7k8W/G7+Z3IuEbsOJ6c32xlUZ8",
-	"C6sVAhxnBkNhY+zMXl7EPLNXn/1WpDN5oTZpt68yU7z67LfvU7/FMezxKjSYuc9TLcl2uE1AEc7yg0b7",
-	"s58sIJxAlY0EUdF7tzA5Kn8PR+qsTOT1kqsvPTKT+RsEzuFSCZhaRzPnLIBJmlBK2DnmblAoe65smiwk",
-	"JAJrlQnMJiQVC4+FTxCVFGeJEbRDTXnLrn1f4yHAOITW2XN20/E++/InON728uLX17eKEPxwoH+hB/rs",
-	"y5/mQJcZXNtZqDYaip+tFCuBOYXZ+g7+PKiSwhNG7ZQiFWWp0BKmIp3m8pQLl7klZCHi8nlcKpyoEDr1",
-	"FLJP64BwPVFmRDPOTL3uidRLVxyE83CpnEURYYoQA3BCg7JYIC4aM4WjSin1oWZUctA1iTW5PDPKNlLa",
-	"Y/9niHVMyc2VsnMqGWpSWk1OjExIci30ROiCIPArrDlXVpPhfhB8b6gP+4/WK6LBorwj37qlYlnuZmvQ",
-	"7z16ELWYaHAEKYz0q26/f3hQjVT9Q7/XP3gQwX8PH36NHnpOBcSiUuV391e/279//+u3X2+tXob59jvo",
-	"l3fneQgHQF2s88CzYXLugawjimLmCg95ovJe64Mq+EEVfO+RCmGeJkYZuwJWYchhwHu2vOo2XG0VJPG7",
-	"cL+cguJqA5cnoyw4rwCHMXihlaCSfWwDxOaV/iBCCF3vtGHwBJZ1qeIzmzXBoq41wUhcpFpFnMQ5m8tc",
-	"uSqEhILpzUZAggMRU87pGNKfEU0ffqTkWKXHyqW3sk0U2i6Ln7Sfnb3ce/bkROw/7B88GOof/tvD3v5+",
-	"74D8KSLJ00lB1w1nYFoXWMg+Cld8K0AnR8BFEsKTcjXLJRPtEiQk5vcAG/kM3kDD6pTgbFYus1O/+eoX",
-	"HOFxWiHRdZEeuLGpBZPhB0H952ZkAWE5YZ0olwRB4gDyynOBO46o9qzN5ElvnkzeQ7THa4/pTd0Eagmb",
-	"th4/5eIIqLToWqGbgZO72drnLNal/hz5bMQosA1ikjMyBaf/RwxTCO2UtWA9yyzrR98TdmyossQ3C6oj",
-	"6GAbiSPhN7aQRWqLdBwx6i20a80Ca1/gEzJQQs4kuphR3l5X+SPyygw27p2qOOdMyVLud6lhvgKGaGs5",
-	"UxHnaVNytnNZZfL8nhV/MlpFsI4S+DzbPSqlYqyZFFcyp7ibGq+m15lDDfXZ7467UKuU1SiwpbiyaFxn",
-	"wrvv0ZNacfFjabRNRo5TJJJXj5/+VCyWqf6dbZl8iD7w1J+dp76uFFoJS62+a1bKLtIifnIHYuILc4km",
-	"xeBuqMeWiMIIqAeRm0vFDDhX5AiNiQXSxK3DW2EWSs5Uz1ex5Euq68yhJ46xaeRhbhwEEc/2CUx9hXCR",
-	"mJ3dsnRZQyiGtyQYjSCTFSsIwi6IzOgLla/ODJM9HpVFaeDBJMU6L21XlwWbp/LNZcnL3IA9p+SRuSoW",
-	"uS4XsjAUs6OuOhBRRD8G4YcIYaTNFXFoy1dZarkAFQGPMUa9KwDppim1wLzF3Oh0XI4BQl5gBfk6I2By",
-	"/6uNhVWYfAR3ILF496bLWvYZvFiHhhroOsLtUiZm100eciUqOJj4flirlETnTIlhi771CzdsDYRdjKeu",
-	"zg3eDExgMEJHXkONm4DVcSkB7J4NLyaP+RSejXLKnWZZG1bzdmL2zxS94I5Ua9DiVWpVQhXIbUC3eaWg",
-	"pkocNCgKFtUiyRBitEOYAq3bz2RDWhujQKNSyQe70Ae70E8Qmkunr2RR7x6du+GSLxnZe4uSD3ipu+U0",
-	"VRwpjOmUQYwzqdOJsgVXQkTxhxE9o6HGdHjQDqpqAT5C3UCwanBEGstUYTEzVxqOLoehpujPKaf6sx5A",
-	"tzgWWcbXeuJT4HfKVqq/lSXlh3r1dmbouKA2WvmLcRXR2NTFcXWYHup7EO0qjkDsX+dip9wKq1IcajnU",
-	"vAP4Of4SdzYmlp6VO/6LtAD58a3Lo3tdWdwP2sovIKM+IPWmZIK7UVGid9ZDjpuF2kEI+wEwkhZKZqWk",
-	"VcyltYj/h1KNKKtfBDJx7PpzOkpZfzKUJY+chiOhnp7MrHECqS25fSjBQ+0fEj+9mO+IX+XCh697qwgw",
-	"KcSFdb1Ds99IFqdVzjXXnKy/8osuGRuxnNnCFq6oerBGpDkRojjsiUq8CZuz3kkwLxkeRbMTjkmXW/Fz",
-	"OubabW6pI/DjGhQlTT7USYq3eiLkGGOGuZDhUVlkEfQ2pD74ylXWgFdx178iJWWBFdcrfJXVTOKaNGFa",
-	"SF+BIT1Ps7QAaPMKS6dw9wamLuo83aGY2mKo4XPL+RkNrLzUTjxLl+EeuQaOhFYpXm4O/TG8pcjzDosa",
-	"tM5HcqhLdbXw3aG+NkU8Zf6GsXRhEFz0udE9Dsf+L1/HwaMOT3ru1LSiFtOBf1FmOEeiz9agxSUvulOT",
-	"W9U9l0Wh8mX3Yagy4YgdH0iOwmIv4zxFjEcxU8UO2pFnsz9TELfv/8Zb+YOm9EFT+mnEjneXNjYoRxWs",
-	"1vcQ4En6UdhLmVLcEA+GWD5F3MSKQVb+sjLaX6RsHw5xk3hfWfgPEv7Pf9S+bC713yjtb0hV2DIqcxtJ",
-	"P6jyt/GciWclVD8Kq0Pd7L108H+I2k9ldEFwDTvqHPk6/qC9L707WGP5MbtgxK0piJLt2qA4udPXgncd",
-	"ozW1DPVguRGrmUHNr7JkUSS0GWoXw9ephrikXO4nrlamHnh8zqHe7/d/+H4CVLinzQxdmdDErx4L/KWN",
-	"P4kf//GfBP/cce8hBglIP4pwyof6u189/k78+J//l1rKYynj9MJFHhUmUzk8xlp2ESkQQ+0iU3/4l4O+",
-	"+JVLqxVfnIknr47F2VfdTw4/Fi+wdfFJv99/HHrCqvt4tJrdSsPCQoM5GnNcEjKaTeR4nKskJWsTPnbZ",
-	"sA6j4bgsHIdLq43IjXfvOwcQ6B7kWjluTDeuJhp7Kb1SIMPnHQ+1LIB4yesMzF7U848rjZucM4YCzxqi",
-	"HF+BMnZUS1tmhcByBaKVZGe6c6CCWhCW1ZR6XWHPLqKKhpAW9IGyVBh/SXmeqF9SZjDNGEx/pM2GjUVD",
-	"DS9Jh/WJ++LSW3HwrvKKzKlyfpFLbSkT2EWkhdDwj9hRJLyfCFr0pcvJKcf5lqwi8bkdaVOM3G9YF4Zn",
-	"WKamo89Ii9WlKhsJk7vLJmpRyfwuIMxNUsgCBw8XVgOqbHYQLObIKEjlhz4rZw53dRQcGKzxL4t4Q85t",
-	"yOb/UpS6ANysNWgd9A8+7vbvd/sHr/f7gz78v7+Fmybkihj+/CbVpMjpItUL0PUin7Z7cvJld4boo7Ww",
-	"6MP+o+2DosPF/Jk0tnAItMPJNiKX45LCLArgiB/UuQ/q3E8SR4h21uboMtF+dvLl3snJl50tRU0vtt2c",
-	"/rO2mhN9t8cs/D1lzQaBJHjSCWsG2Hwtv85X8yy4CAjLT0OtzVVnIOTM8E3nQh78DV9QjgxeIPitL1zO",
-	"cxtqrNe0xeVGgie87G5HLsuO+LOlibFiXsSHKEESYwnAwOSVTAvvXcM4ERTQWHyzKkSioYmNUj3CUiQx",
-	"SGkaLd1lqEc5Cets9SZLVC6wtP1XLhCl0j5Ai9AtDIWPp2aRU8mrUNJLLbfDZXxk4XYCJHONL/h6XeKw",
-	"f+gK+2CET64wtJtqyLjiSZuiCLlC3+7XsCea1s3oruvhEXaBZl29TWaGolpPn56I+/fvPzrCOCTcXHlu",
-	"lS7WoYLKYnfs0feOOOi2YhPwYLn1H8wVv4jwyequwFGVTJZ3aqu46Qq523TSYxsUIVyTtRpHpMiFxsNy",
-	"HSaGyu7XL5fYValbuV7g6GK53qH2Nb22vDFB6bGGeaV4/uzFGSiniq6PAsBs3PAS25iQ+plxL7jxozvq",
-	"cKh9zDs5XNbrNCU/fJdEzpCrvpO2wqx30NJpkUtkwiuKy36puDRnej5oyNj8ZJeEzaZF+ZC6+UFT+aCp",
-	"bHO9fL6QIP8sN/DZO83h3L7a7B1cMbsVuaWa2PUKt4hDHdS3ZRBBzJxBq7Z7EaPjv6HlTJu8XkMd3lxN",
-	"WhHlKDVrRnB1dSIK2SumrggVR87A+MqZIFvBATZwFXc1DXVwN1HGDL2WWm5bJZwpZnIKsigAaXAgymq2",
-	"Q12a/xrvNmeyhInhgMC054rI2r3hot+/P9b4PyooYMtqGS9yZVl74pghEvejPpTLdHlahIO42935KdLZ",
-	"z3x/Up9Nl+muF2a9lXSllTWoCQ1N9g8PoM2vN13p73RF49r/7Pc0j2LzZV07We6ErjthH+7tD/f2T3dv",
-	"r9xXwb2T5s589l7uci74u50tseLj3t2ymFH9lxD2OkzKwogSLWdqXUTJCx7re+Qq1MWmWBBesA+1Uu4+",
-	"0yTLyvrTNVoJs/T5ne1M7XcY4hHaPdDLDbQqxgz57ql6vydeGVtQRTOCqIZ/48tcm3451CWmRwlOUD8f",
-	"rmkyZ18Hv7QP+vuA/6ywolPuf8B422UU+KnHHPZZJqvWAEyGmhFMYGzl0F0V8mL13N6zLnOd+NRQu4Ey",
-	"3Ad277JDwaN8gAUwX09zZUnWzdSkEJi+OhnqIEwjFoV8o4I6MveshxEP6646qhJ2aq5wClmGICQQLUA3",
-	"O2PT50osdPrNgtYeBExnaYcY8A2+5xeuPNi7eZ3vTLhkg3QpWS50WrQGrdnF3nPspkq4n9F7wFK/+FLM",
-	"p6YwM4WyziS9VC5FMtUiWdAYsDAWojlgMSwgrVZU67W7uGxFLQ/0ACXL9663FyFpSX8meZH3s4GrP3OQ",
-	"O87PVaP3I0/XWPeI/NbI/+/SN75+fMRsmGpN/m741O6qjYPLf+9b2Ob/0QCqP0i8v0CQMTw8ngdHZcRY",
-	"KBQarXa47psFWqbpn0OuZQ8zBYRRlYywTEu8vrJ/44WDbkmIEAvYsZy9L2/psbBzNYZ4h4D/BUxxC59p",
-	"ABfeUOT4YP/w4eEn9z8+fPgzljpez2xLEf+D4/Tn5xcvtduN9yz/M/PgXI1tmMZK3gTn+EXCJwi6pHLR",
-	"pnZRGqVyTInKVKGStanRr2gg79N+pnK7OeuBBv1B0b1zqoZF59XdPk/o1pqqS5Klki2sDGGWYSSkmCyy",
-	"rIJtINqIURDABYCO1YEqUSZTHCNVpiG3GVFPwi/iOL8w+iBNxFTaqQAgmw0a1itX8v/n07Bg9iO+to4z",
-	"dS1Oy5zLxkTM7XIuTaYCXAyVt3aALsZF+Znic3lH1vADl8Tc+iD4fxD8d73I50qj05FoaHe2V7mg977F",
-	"w/l2j6/a7dzMNamd+eJY6gAtDdieSDGTBf7pqwSmOeELkEWJ4b961BDPqTS6cdiQQ3lBm1wTG3xMo1/H",
-	"BxsEf+JJt5X8n+PX71ey/h+DhfzvQLRm4vMoc3d1JBcaUC92PpEnmZK5ZaQNjEbALLAKpoYq4U8aQ5W/",
-	"wK4/HKcPx+mnP05Ee+9+mlhffW/Z/Wi+ZjtbWRa3dBdROqOvm0pJjraQhYqwEi7VzMYrUitRmEJmFDIh",
-	"2rFV30DgT7W0+Ct5oSzn0lL6QpbaQoyNhpbQmWWVEkPUiuyw5eBSg2mT7Tq1IjFjjEAB15eLWoJZW5PH",
-	"+NFEqcSVC/YpzOfqIkU0fsBRQ/cUvhcNdQxetZFrILVCZleQI2FVIdqYdybUbF4sETWboT85FMyaXFgY",
-	"SjTUGK8M6ZIzk6vYpVkQ4Bs84kLj4krlypWQFWMzm6HjrTfUT3F1YGjVEVnlqwVgE94rZ/RYDVyzMldD",
-	"rRezcwz34uWjPWHJpUxKtdwvxkFLmhfsaT7UnFAtNfflEmf8QNEEmBMtYfgcvpZaAbaWQmnXddAdNTKW",
-	"C0q0GWDGO24BAq6imMWxX5jZ3kPyRDMsP+/JBPJiY/qBM1+Jwn1aa8+ltEfrs7X4zfDXuIN4To1ZRf4D",
-	"/1M4CBf7V9aoLotHw9DhuIwYstu/HCYzGa0snBSOfd8Gbbdd4tr23PvxoJYQhLn7qfaQWmGKM7SIY8UT",
-	"6+tbrzVBneJ3T5DGdlbS4dSfIBW3Vm3M8KOw6Z/UOgsyQr1XzMfsBG4N9vv9qDQmQ8mqn9GMTEv0VDWn",
-	"sWLYmSRuSkf1gy3t7j1KdGEh4zeTGpBBBaKUntxNeg2/vfct/WOUJm/fUzamu6H5Zu7iRInzUoQDuZZ4",
-	"FHFU4pf6TMrKLc6xGZijIo61SJMSTYK6qkT9DjWBE5Q9rPFe0VFY5RNNqP7w5j0LXbeDoTsPNc4Qr1R+",
-	"6MSUjmcXVSneN7FRkvepe6kuPj5sBUzkUb//cP/Ro4MHhw8P+48e7f/sDIUyj9dXRYB3Psj8vwzvlIMl",
-	"JHR7QraHMP/3x3oWW2fulW7t1VKuJufAMhDD2kHNFFcWx1dPoQRrLKxltMsrmSuUnCjUqlYi657nPZXa",
-	"MnV8lIGQ4qC/T2ihtmI5C4ROxL1ZOIxPknLJCHcpszQR54vCwffQyMZSM0Iox7WZnEBxQKLnwKcI0gx8",
-	"EJnFmjRZhK66CciV+JLtUOYfADSTkyNyThQ2RoR1G6plHAdQYWioE1lIaIR8fsU0N1caEsyXAANF40/1",
-	"fFGI9uH1dYd6CYtmDfXpIgMer5aGYaaJU1Dw2iBYdMJGxWhD3C9UshQhLbl9YgaLUDwcDQdLwj8jzClM",
-	"HGCLVAYyKJpkDBbtbeeKmJryFCIujEh1YUJQKCKW4sq4CLPEwHyEncKWyaGuIJ8cufs6TSqhekGEPq7C",
-	"X/3VX4nA7TPUZwruh+BR9/dqiUU7ZhA/mKsiTxXsxkT1xO/VklrHI+fQDIaaAGNRQ7Gk8KgZDh8KvxEC",
-	"bSHg6izEwaHAJPxKls09DDwEszH6z6iABUN4D+h78ddnLz+DBY+CxQdeMZd5WUxJj42H2BNtayDQsVDC",
-	"zuVYMQwskD3rdLyiM3Q4dY6oo6E+Ofuy0hGK1KK8jT1QOdS+OjcJlJgoFNjRuuJMzpR4o5YRlUwPJhVx",
-	"2SieMpzLOXquifY++siVIRpq4Q/URx9RjYxiketyXgf9/ZJTYD84CrzpXexaDOq0oNcq23uq5plcYrf5",
-	"QsUQksfwvbiiZRpUdTouyrYI5zQAPKPKi7DgmQqqZAV5VMQAUi0mGYQ90ry5a4SKgAETnJQ7VEVJIwgI",
-	"TwVMcPW1yHEmhP5lcnGhCgS0hVbaNO9TVeTL7vGkUHncESmYYkRiiDHAPFI7hfFAyziL47IzoGVmTsBS",
-	"oIMHwFn85xB+i9LhG7X0RwtIpx0X6rrYG9vLuDPUv1VaYUlbMc5SpQtLmju+CQfe5+TBHYMfibYXCYea",
-	"FeXThT6B9nzkrnyjLHqFRdkbrkyixhnjxlmi3KEOSdcKd28ekSXId8YwYBRCjBaUoGU71HQ9nqtETFWu",
-	"ohoFqslEjYHITe5m6q0ZDJxHFYOkXgaJflao67nJcT16ggCdT0j+64KHbyDKQfjqk0NNwZpU+NEytpsz",
-	"Uq0c15j4OmgJZcdQFDIOEKZi0XYLQ5w3dnXbcEMK1PY7R1y1Oa4LpjFDrwXd4jVyrjjES7QPIXTbKSN4",
-	"YFMrvnj9tPsJwEFndBUgK+kSe8LiZakV6YWGA9kh0I3D/U/6Q93mqQNW4TnM2bjAcxEPW/GReP4USPbk",
-	"9PlTkaVaCaUTKA39PNUI9WcsH9ChHk9lLseFyqGv+K9iVx+atgeWAh7YN+l8DkRznkn9Btu04Q/swaND",
-	"b9Bgh/2ynY82rCdOTLaYaesTVFCcAZLAKQ9geb4TY3xJfOdJVXxX2p9ycyW+c7cd/jHU33W73cr/h1Zi",
-	"AAKLxXdiqaz4TsSuhRj/wO9jQW96hAT3Mj8QqY/wW/MQP8cLuvwY/6x+SrZPeruK4+i/csiNlZ8j8eN/",
-	"/r+Lfq0FdzuUHxtdyZ5luWLDD0PtFwE1Rui/7KUUJmozdRmTKx+4H8REjrHWIWWxir5o0yskmu53uKHU",
-	"jsJZYFuUAkz6hd/ve9YP2kxKdpNqQCiCDm/9HdBaV5DmQS/OVQ4UBSW3WEJzTmp2neXmylb5Hlw2Jfkg",
-	"32BqCDUBYtrIENzNpWRRbaRKFh0X+YqjrvUQ7Fub/m3psi+7qfUQ7BxUFDNXLAGlVJuXrgWeM7SEv+KV",
-	"SFVZ8TyG/ablPeLrK+JpRNGNXsTvqzvN3ABlufAXgDbBrG3agQEWa4DbGu5A4YEi/X46+dqUgBEEvq+h",
-	"lfbKz9AIofin11ycPiw+xiuVo19FFizsAL98VoRTxaXRDcPxOeChHuHTtG1QZR+aWCFWNiXRYKhgw5KZ",
-	"aLusiebGeA8FpXgPeXAtazxcbSzA4MRmn1EPggeubkh9DlZM+xIFuHmfsZK4sErEPRADsEDfTGZiblCm",
-	"lVq4yxFvco1XXbzfe6C69+MOIdvC2puFRYXeKrgiC5PbIxF/Jj+DW/mZnsRl9Z/0jQpDQ9AggI4ZUZJz",
-	"TuURJLrPYIosvo1VlvEWOjkNbuqlKAxOHldPwMXgr2dkT/S5doW6gXB8Nk/i6J/uKylmKSGv+gNAv0eg",
-	"OwgkIlZuS5mZtG0gFb63GWnMXYwcvg87Cm1wCA2+dNh/9DEpGCHFUtkN3ASVr6EF+osGR49iOtvN78cd",
-	"f+BxjV2VWEs0ROvYBmhg8BWUuiucWU/I7txBR+5k+k/wRxs8cHYRV64VaBMlI8ptk4RtAG0d9PsAcCDQ",
-	"DoBs2CMcdMUZafJoBmBvlWKbjG8RZWWgJKGN7tKdRAk4R6TDCpHJJeoX54ZcQK7q3fkyrG94j45QokDV",
-	"zIMEQWjiPEc4DHT6ovmX60sK6de81+vFbuPIA0hBlIOhjuN4qP+KJWLqOLi7XeaZyrv7os0C2qog1hlq",
-	"oO/I2SLITFOVKhyLiDxHj9z9MNRuLyNOVYue70f93oMIkBX6B1G08Y3+o0+a3ziI9nt9eOOg/6D5jfvR",
-	"Ab1xuL+PbxD5uN8j/PhBP0KMhoM1L+zfv08v3I8OeEHXxMyeLu4ECLdqNATKQErzygRe+AyIzPcCJmav",
-	"8df5EP27yEDZPJqAtEo5b924ypff+9g8jiMaK2UJdlmCDq4bZYgYvDPY4IYhev0PRmfg9qnh1awbkNMh",
-	"t160l+6Dt+8HOrn/SYlAFuzpoBVyl1bk6LCWr+qnw0iTtsAo7RBTpQm5pYRWOViFVjlAvnFw+LABsoU+",
-	"XwPTcn+1rf379xGkxYvea4dUg40G7uVBop/vN7TcP2D2tnaYtSb3gwabpt2neff3t23wIGiwYe7ANeF/",
-	"+g+3bfAwaPBwtcFP9h9Bg58cHGzb4CdBg6sgOvsfH8Ia7n98/+EugHaniyCGP2o5c1CF4FsfLs27uzRr",
-	"0SJ1jog6gLMEoqyE6e6pfq70RTENPb1hTfqfLvUCbKWbEdFDdSioIc35N22Te/dUzsbyoV5xkUQUhMYf",
-	"sYzobPjOjswhQUFueZMpfnWhY7TNu9raqXWKM/fm1o51zxK7AjutWWbBPr1NOvq5MZmSGk/ZdhnwXI2C",
-	"U+DRgA2QpR+y3z8kwbzneAHAVhHSH+RJWgSHOQwYWOgts1sbYgPcNfNO8QGvWQkFERQBEisOn5iz/Uon",
-	"DMcLmysdAOwONblUxIX3JrG7IwjlFVZpBqYhd6BlJRS89RAbkKRSwOGLAs9Op3RmgmdFVB0rgbdo1ZfU",
-	"E25upDhHvhSLpX+mJavzvRCW4lBLrHdirGpak6tNbiCofQOORjCDDLUhx3tuFoXyDkEuwmm4TrSq+hEd",
-	"K10Dj3USONzuXkHcVQ18XzDut1f+3seI7kzl2yJobScV8Bei7X0Qen9moZdDEdhCuMqyPojAH0TgDyLw",
-	"BxH4ZxKBySXxHiXhb7cOy39HACiYjkvNki4UbYBTcp4yLtLv40HYDYsBgD5pgZ5VMrhyNVYpli2qMr51",
-	"Yfi38A+cLvT7LrQLw1rP0z/Esv8CwFfdmSTivdUZ3D2QnYrFvO+cV/omiMD1FU9tVD1tHPsHsTRcCTVX",
-	"ELM8my8wlFyPVeQud+XjjayPD18twED4bykGRVIJziQ+4rxMF81O4eGU4INJOQ35iDR4F+QOoRCWihjw",
-	"IByKHs40HEYZgu/rh0EMKBcIc1mAuPM+P9FHhp6GqUND/Vjl6WWpxrs5Os70+UkUxtAuskoZOQzGHKfA",
-	"4oIwTEpFgl2IOU9pRI/iwVDv94JeripDXFsPbiBiN6n4aKgPwibGZpElopIeUHv9fr1HX47VZ1XWvjgM",
-	"v+DYW1iMGXD6wuRLlxogMWDYh3dgMbpaWw96IdRecyarL+xcKaLHwQBMDVT7OIgSpXGFvUX1Sr74eaVL",
-	"F6XVVJk3VzgPJB1IOsXIL4wkWan/66TNdZSd8pLAe9gAfTxVuYIrdE2dXzFNLa5urdwvtoBtQ05xhUIY",
-	"sAlDvZx2hl1X9WQKVBJJnk6KDudJ877iTrolTwuODa+WVOZFwzZovSgHGj49GuqPQ3Kp1BociDhI0QVy",
-	"eBi+G5QwFG2v5cBJiShG3FcxpMF2BjgEPlXA8SswAD7PH482tu4Sv0FRdIW1mN3GniO8RPMU2SXsUFPs",
-	"8zFGXw9EKCBMpmn+axdkXJaWxqhnjGh5+rtnp+L0ENhrlnF4Y/zpQicQ4QpjeHluVX6JrcVWtC9lxijO",
-	"ONkvTr54IcYmUaRsF4sg47+S8TgQ5RKIH//TP4kJKHpRJR/6x//0T0M9zxVED2kJKMmeMcIXY6khRotj",
-	"lalWCg7nSMSJgos1phNYUhH+gtzyaW5mcbmRnZ6oLlolVHw51G6FXNg0Ssm84WzozM2VkyjL2DE51HYO",
-	"16KdKlWIK+R18DctN2zZIpMY4ZljpDy2+ZtI/DoS3Uj8h0gU8nyoMf7a19SUfEl1xDxXk/Sal4By1I0t",
-	"cjOfKq5NDjdPeEdJuP4MLRRlSFSAv3FJaL9F28dX+ksKZg3IcyItVpbsuhtS2jR72L08+LXKH9ISOhob",
-	"6t89fyguD3oPevsifnn6xR9P+/uxmClrEZMi1eLJ6UOB6Td4KblYTr5S2y/OfhcN9ctPT+mnl5/+Df5M",
-	"Ux3QxCIixIVOi4h/EUSOkTAlAQ91kc5U5HFvQZKaI5QFte04Bdt/I77b1QW8I5SmG2+opRjLPE8hq5zy",
-	"azAT5sXz56/EJKd4SwPCxO9ev34FZYK0z/oqprlSdFQI5WGhxyovZKqLpThfJBeqEEvF+S1BmW6K+wQs",
-	"AqonipvDwYtrNJBTn339Eygins9UtZE6qi1zG0dwsCjLuRIl7+mVllVzDnc+CsjvpPK4dahHAKw3qYCU",
-	"3Uzam7/bkChsP2hXP792dVaBJeCk9oV+r0nCpFv5KKd3zRimdgLx03Ms5/6A9kE4kQJrv4kLg9leXmq0",
-	"pVUcgtQRQ6ZWbq1AFauuRuVKFywFQb2IsMJaWnpg2qVyB8HQE06wCwpreFGwxG3hIF42z3rhIsBFKkLI",
-	"giogEtz3a7KaxeakZixsV5HQU7uiV17JcrmPOCGLFCy4Sxz+jHcPOksRhv+jpqUsJ1c0ahLWB5kPddAr",
-	"ojGV8l9dSYf4fEcLvOFOlyNIn7SwKpughgD5fmhTcDMN1L6FvjG/mS/BoPwcOng57Rn6mkLbTt5wMDtM",
-	"Gkc+o0OkSSWZuVIADCuCgC0cBC9QiThjwZekKzxi01TasFFWW9zUSCsY6nJ26520vIB34ajd4Uq9ZVRm",
-	"JU5ybYTmo8F9F6G5OZiyIWbvPoUpHjx6tEuIHS/izwSVW7neG69frz17BNG8NCq5dOUPdeY+OF3ev203",
-	"STw1FiaIQPrGFaArpmq2izCywfPCHe19633vb9+3YXdSZh0Su4+EHOfGWpgoHUBXBotufTT7DvWK3fdI",
-	"3HD5+a5YEGB9ahskJUFASmU24hr9idjaWhVqlc9AGfPK1FcuZv51DXySH9HdhMm8TzdSdW0+qD2/dMaz",
-	"ckpljVrfmwJUli+gA1wiLG6nCW3mPp8uURyFTlQucF7fyC6bZ8MgFPRtOC3C10xA9QYDEYfaDxRRwm2E",
-	"+Al8dmHAXH2nHH9phhFykaSFKHKZZjisr/glLj3YACJZFuVjPzLcB8787AEtFRjdxEwm3kWEIxFtyLp2",
-	"I+xEFeM0AMUpDXa0kVs0nGYUAMmiBdYJQecKzXSBFXao297q6nWhFb8KGbk7rBz4lYZGGZ0W1GuEHBVN",
-	"kJlRoNXBYsAUcSFVEgKKwk+jwrjJdMjGCf8OlpN7z9JL5Vd7qHHhvKsEL4FHA7+MtHNuawgkt+EmcHt5",
-	"5jq7C2Whgfu/A9v/4otnjx3Dv6Vu8Q41NvBsgWmFMPZDk8FVbvRF7crvbV+m8Ct/1n6mUoXlnq+54soj",
-	"WRL4B03igybx3i90dzSELClve6jzm+5sNkx1Z7JQeSqz9xkRMjZ5Qljh7FbnPhHjZ2yStUWoz/iLF36Q",
-	"75MT1DrbWJjaDegDyvB7KU29Qio71aR+T2Woxypn23muXD1pNz4gfVtAVQJrGOeIvX9oi+dPx+gij9GZ",
-	"6ZJY1PVc6kQlo8BHGFOsYjwGEVdeqBFhJsUMAhIXJlM51XBu//AvQkal+TdX40Lqi0Um82ioF+I3Qu79",
-	"+I//9T4KVbURmrzifCRkjnmu5jLnwKOhlpqSZPxECQkZhC0tYvfyaIKOdweGybPmnxnGyhZqDmEiWQpY",
-	"ZByLqmUmLgF/hHzEs+dekU7zofbztJ0jEbgiIvQBYxPO440lD3xQwlwSHDMHMvyGH4gfvhf/9n8TPIQ9",
-	"7L7jQ6pylckCxEtHfUMd7Al4FM4xQaLs4B5jPaF4TNO4Z4Xca8OK//D9l52hbv/1yW9fAJaJ+OG/Pejt",
-	"9z4+Ek8WuQSes3fy7PXxifj8i+MX4ng+74knvX3AXuL64b6A4VAzvP1ASGSXIkXAHYqRA9i4Rxsqv9XZ",
-	"2i+hynYtRTyBB5+9vN89e/3y5PddAH7B5xXix/T2psPSGjzAH9JcWW8rf9jtf9y933+NUAZsK4dUltag",
-	"5Q/vaFYuSWbgw+cvX3fJ0L6PqAULmI3KQbumOYhT97E4ox9trTp41EKSI7j87e3rtU36mQztK7Sy1uzD",
-	"V7pbwduVx/ZiQNwskux9C7TxIVXig6z9vmUO4rlBsKIIeMMti2Ovpec7l7QbTds3sv0GAwWy4l++ZXpL",
-	"LlUypw/W6V8CfP+7nK3dLNJUPnLnunjPrF0oK6TIpU5AkoRmRNsjk+8ffCLO08J2Sm8PJAdoAju3zsqs",
-	"xrkqvOkYo0VcJqLOlkceKk7lDoUenqMIyojmQ401fTEwFPMVMnNhRVqsl/Jew1B/VtEuQGxG80SIFvW1",
-	"5zCVx1GLFq7m5tw+LAFn/TPJStj3DTm0SEBBmRgmDQi11Si8f6jv+0FY2ZmXIpsSkqgr4KHM9bYUT+ht",
-	"n7dJRfK3ZpWn6tK8YV0YWzpi/0sJP9rf75QKuVbXJdI/lUMa6gBL1cV95dhuQm2yU7+xnC8Odw3Xe3+u",
-	"lwovOVxdLVqW5IPE8UsQ6WEr3v2Y5Eon9j0VHKM3QB+uobAj2K2zdYU1PoNsPrQzDDVk73j6j0Wbq/eJ",
-	"2GZmjhDP0NO5tCpE258pSc5yDg84e4wtlRmFsfsiLlOhyuGSm1wn5qrs8KAPpULhbs1N5rCBbVoIWYgf",
-	"/uVAnD0W7SuZQ3FQsrn98C/38SEF83YwmsZoCDI9m6qrqcwLSJ3KC9F+dvZSPPzkYb97wNP5StniAnO7",
-	"MaZ1v3tgy8Yjsd+9D3jnB90DG4nT7qGNxGF3n6KT9vvXok2Zhh20sSlYSEkpp+XC2moWqKW8H0Sz0Kbw",
-	"qYpH/l8hSAbYQDmuYKhj38FATGRmVQym2MvUZGR2dQZVi5MJ68NCgxD3fGkyjDXGxJyJunLAz8WVWdmc",
-	"YqpyDpj1mw7AwbQfGPusF1nGSUfUZWrLReiJY8JUFvsIp1zOaqiBsI8EwG7oMdXmdOVXdUgRGFSAtVjb",
-	"WuYI+V64tUA7MWwiHivBF3oUiLqIJjJWEWdnnhvEv1lSpPlQf34i8CJPFrmylPYvx+NcJWnB9RByBdbv",
-	"Ai4VnYizl6+4+sc67/9vVYGjWXOPvH+ko6ZunKH0ffbhZ7s1GhGu0yv/WQMc0hNEWQH+EUbcRyLVmA5w",
-	"uRbPCgjjDhB5n8uioXd1fUPvhbmDvn9nrsRM6mX9TEalGIT5gFUGGlEZrSJg0utG6X5vrtZ6EBZrPajU",
-	"aj34iUsr0nlaF6ut8hQWBY6um1HkseR1UrLGD97VuxeLHufppHASB9cXdAea0hkpeRLFjNplDptTvXkD",
-	"sYpo/a4MOHg97M0zU/Ts5cV7Er+wl0oKNvUb18ChymshEhQKxLkwvDwopQxC2YFLhlHEMwfvKV2gaKD5",
-	"biOZaKgDUYjWuYya49ZQ9KBToTCiPFMudBH9xFhDMIO7+7RBGNGmoFFvuvxeZaY4+/K3H+7AD3fghzsw",
-	"uAPTmbxQe/by4tfXs+wWecHIGj5cY3dfijxkvZTji7w7EsTF7vhWgr7VeJGD1RC44rmSucqPF8W0NfgD",
-	"FRRAg/66vBH61dU/ZUUtQOYdsMoHRiuyonEoiqufKpMkV9aKPTNXWs7T3lLOMsxanahiPHU4QW3Vu+iJ",
-	"eFoUczvY22P4skye99hSH3OkyCLPWoPWHpr8ea3q434WFIVbaEuR3mW0UJna2i7tCLbTK48qfNUAcPuU",
-	"SgWHbTkeQal7AYYPCAA2aJK3c7XRZxpWX4l5rpJ07HCSnYGxglgatle+3tTo5z4MHcYSZgAEk8QXmj4u",
-	"U62rhfIjn6FYLxVfTJUDi5kolVR64TSclW6+bEw3jsr867IYLacPaDEx+VgFrX8zbmj4GG/fdCwzBtKw",
-	"QWgW1wCVmOFrsnScqnBZ+YOmVl89I4Nc+Do9aHj7Fca4+gUz1RRPlalxkRudjssA2crm4tcNzT4Hp52y",
-	"vgA3/nOmijwdu/aDs9mrw/cStXz99n8bAA==",
+	"7P3djyNHlicK/iu27FtIUuVkMCIjlUoGBEwoMrOUXfmliEypZ4oqugXdGOGdTjPKzRkRLCkXfbcHg57X",
+	"nocB5mGxwL27/dy9e6FZLOYlGwvsw6D6b1j9JRfnw8zNnU4GGRkpqedmY0aV4XS3z2PHzufvfN8am+nM",
+	"aKUL2xp83zpXMlE5/vNYFuppOk0L/A88SZQd5+msSI1uDVqvzpUozBul71iRq+/myhbiu7kp5ECcm0sx",
+	"lXrhnluRFlaczsdvVCHOTZZYcXmutJjMs2yo28W5Eqfz3BadSMxULpJcTopuqopJ97woZnKWdnNZqAzG",
+	"0eURdvuf9sSJ0oUwWqgLlS+GWmp7qXJRGCH9iC7T4lxIcSGzNKHh9oa6FbXs+FxNJcxqKq/S6XzaGuzt",
+	"7t/f/+zup/v3o9Y01fSwH7WKxUy1Bq1UF+pM5a23b6NybV6aLB0vmhcHF0PM8I1IxMN5v393jJPAf6qD",
+	"y8/p2WWqE3NJD+OBiPGduFw8WJOYXoqH2qqx0YkVvGywpnessOmflDAXKselztUkzTIBq9aJhOqd9US8",
+	"1+8fXH6+H4uJyYf6Xr9sXwpq0y0W7oUwE7HX79dXayaLQuUwxT/+od998O1vDy4/p3/8Ty2/VLbIU31W",
+	"XaljNZWphsdLi3XsBlI4khJTuRC2gDlYpROhzWUkivPUCqOVGJu5LlRCK3B5bjI11H4ymZoUItUBxXUO",
+	"RKLGuZJWWZqikuNzTyFSJ7xedqhlIYqQrmWheqIPNCbF/t6DW6WdY2VVw7k6of2NRG7mOlGJmM8iMddF",
+	"mlWGxqcptXiKhDyTqR7qduyb7/oVj4X6bi4zK4If8b9x50D06SimvqlbmaMq8sXhpFD5yvnBMb2UaSFO",
+	"1cTkSuTwSarPeq2oBVuT5ippDYp8riqDWdfv26g1k7mcqoJZ2NE8v1BPHjYfzzH8eMeKNIEuU3g8k8V5",
+	"K2ppOcWGk7VD+Z9yNWkNWn+xU3LQHfrV7rx+/eQhLsSTRE1nplB6vPi9auATh2KcpUoX3fG5sUqLN2oh",
+	"2lLA97AfUpwZk4jxuUnHqiOKc1mIqXyjLHK4Ik9VMtSXeVooYeVE9cQj4ITi5YuTV/SyLUzOb49NnogC",
+	"P04L0c7n2g6EVWqoYzgchTqe6zgSl+fp+FzIzBoxSfWZymd5qgsrjk6+FqcmSZXt9MTv1cIKmSthx2am",
+	"gLEOdXl4qWel8SxND/DMwsRgXekE89mD3mShmGsNdW7mcN5gd4K+aSFOvjzs7t37FNgS9GRmKpewiBF8",
+	"KmDnhrrcfTzVyAJMshASXsitSvCx0mMD5wqPjGhfnuPyzeRYwc9DPVXTU5ULkydwFxmhDSx6Uaj8QEgR",
+	"z6S1lyZPYsEvpsx0zLzo9Ia6K07kFCccCSunwVCx92BikZikwGkdJwJCylShksFQC5zlJ5+YPD1LtcwE",
+	"XW6ffALd4dry8LELW8hibiOeLUxCiPipGWO3cYe4XhwQY/dYzTK5UMlAAF3HEY5Nm+I81WcitdAA0FWh",
+	"NEyaxsn361jmearsqvYmMrMqriwE8k9oXOXBapicLxz+BQY/EPt7e9B5O6aLfhB28nu1iKtLDOSaKVyr",
+	"6lqmlu+PVItJlp6dFwN8i246nJ4E+pgYoD2cfQF8MMd5wBHBfg59g0jUE5lmcPHsX13B8O9dXXVEYpRF",
+	"GgHBBmnujVpQZ2/UAnrCsZhcJTAYeF7kUls5plUgesZDHNGCQBu01jgGPp6v4GzF0Bi8r67GCpnIQEh/",
+	"J1i45mju5+ZSC6MdTQuh8ZjROCJhSUaCucLr+/0HcDph78tjnFo7h+tHwzkozhW0gvwpVxfmjXLLhq/5",
+	"TUwnOHweyaW0IjMWz4VjsrSvJZutbXD97nmq9Flx3hrs7n2G147/O6rIIofdfye7f+p3H/RGg+633+9G",
+	"u3ufvW0WSZ5oW+TzqdIrhNrU/y7SROkinaQqj5CJGFuopNwk4KGrLo+yk5teIk985zjsl/JMHc1za/Lm",
+	"YcdaXRWjMb4RO7Ka5eoiNXPgf2fqQMhTZB1A9OWRgZ/8LL6bq3xRToOaa206ZB4figBzvermzef6w967",
+	"b+F7OzPaKpQDvpAJy5jw19jogjdfzmZZSlxyZ5ab00xNf/vXFgb6/YY9vqSvqNPqVJ/JbGLyqUqEXehC",
+	"XkXiMjdwwhYzBdwDtZK5gnvDpgkxMWp2IKbu26H+y5MXzyMhBVEwSGu5ElLoOV4+pyoz+swC/xZz/UbD",
+	"sZ+kKkvgEz4gAgT+XOozJS5Sk8lC4a+41cLfmcThPDeDpVnQsW1SCrteK2xaHf5ip6ZDhtJvt1SdNmqB",
+	"X680UdEpNmql/KLWEIviGzYCb+OOHxk9ydLxz0pXeISUNfN8DPIr3P0KjvRpmtDd4K6stiQhVwATUJcq",
+	"ETLLlUwWkZBDTT8BLzPzAu/4IqorzkiScNWmJZPGO8DdrUNNl2vnI6VcQymPcYMSpX9uUqHLPJPjN5YM",
+	"JSS0iyzFyyzVIr7qOnbbxd9s3Pu4mes284kuVK5l9ijPTf5zbqjrWCjomVQlFPotCK1GZwsxbKWVl4Yt",
+	"J92WwnHycX/X7u9zUzwG68vPfVa1BHHBMffyMlZXqS0+7tnaPXspF5mRyStjnsr8TP3cW4enELQyxbew",
+	"VfmFyu9YMTZ6kp7Nc5UItOx+3Me1+3ii8ot0rF5reSHTTJ5mP/tWJrKQp9IqMZYaTt+pEjmYjJU3RNPu",
+	"pmNFuva8KEA0T8yljlDYbk9QvkelvkOG61TbQuoxfakstJgwxz5VYzm3ClVK3zfYYKSAb5LTj3L4OqJh",
+	"c3PX25vXflxapnH3XxnzTOqFc0H8IsJZ4EDLZYE05T05HznGB9z811rOi3OTp39SP+tV/yy1NtVnUanm",
+	"R155N7kg+1oiTpXMVc5ey48ksJoEvvnmm+7hvDhXuoA9U8tmp/gLXMvYWZxFjLJxLGRR5OnpvFCiffz4",
+	"SHx6/16/s94FVTcoEiHNcjNW1sJ19UgXabH4OenpG5VlXbY1pXo2Z2v1aa7kG3T+zDPlLIJ8cR3wCtiY",
+	"3TJwwQ21mUyUTuAyQyNSqTnMM/XxErpGcnmt7Xw2M3mhkmcqSeUrpJSf2zCEF8kdK46o1y6MAq4UbQr0",
+	"vVW8Z0KOwY9gP7KXNTv71h1/XJtDXDGpx+oJHDV4JJMkhdWU2csclrZIlW0N0BFW36Pya1Gc58piNMwB",
+	"nj7cHedJZE8tbJbSZ6kGS1+iJnKeFaJN3h0IWSADjiG30lQV5yZB9jULxvF961SO34zGMhuPMnM5Kkym",
+	"chjBaEaGS3U1zuY2vVDPAu86sBNZtAatxMxBBo/KQIDdful9JzM0LHPZyTTVI/CSjiY5Obmgk3XtNcYT",
+	"NLX8gYZ+bqbGjlUibZGO02Ixktns/NqTeIgvvY3I3gLbuuV3YJMbmclokm775VTqRBYmb4goODpXYOm7",
+	"hHgC9FfOc/pfIqYLlSfpuDjAP9BlR458mVyk1uQL9MkUamqvdfVAP8/lVNF4rp7QR7vl+so8l4tW1Jrr",
+	"9Lu54t/hNuUJqGzrWV+N8skot4nb/urUf3N88tBdc87/IyZyXJicJh/LC5XLMzXKJ7GYmkRlQmaZubSi",
+	"PYbpiJiajzs98ZAP214/EhJERvH6RDx6eShOvul+tv+peIaHTXzW7/cfivYkN1MxVVOTLzq0tpk8NTnu",
+	"0R3LJ1NYxaFw5hIFutuhXlwWe8tHAs5wpi5UZisxQPf6wVndW47BoQ/zkf1uLnMSqt/j4Jt5kaUqH42N",
+	"eWNHye3NzjVsizk6Wf+kbrFx8ApvSdkXKk8nLBcsM7kqlf/wm4c/gO8w+ITMBDJPRPvJ0dc7R0dfdyiC",
+	"DgIxMU7EFhRho80Uo0nQ87gdkQ/1WGbpKcsNYfcbEjyKj7exxG/9E3P612qMAkd5r5YCxxbXMsVN+RsZ",
+	"o0ZMPlaRu3Rted1ufb8uT+/9L89tLskNvl59A27wccP9t8FXjbffBt9V7r7tr6rK5dRwE200gvo9tOlH",
+	"dps9qbLgG3HaTTjqFl/V2OUGX1Z54QYfbMMJQd8hbgiXuErgyDbzRSvaScDqVjM5FJ6vHebb0D7wh3Cj",
+	"avTUROUrD9vqMxyt5TDruUedTqqUuETMy6e5sonNtLBMV+ExXbup3zbxckcv9VhZm55pbEiPQVO6UFmv",
+	"tfb26PfuhSJGr9/v7zYQ3aGW2aJQ194ZVa6PAuR1vOcZvlS/bh6nGO2eWiGp62okJLYsinMZ6nV3rIjx",
+	"h5j9C96jUBFr4RejlW/YTITkFkgpGOpA7J+kRQGWxoWQIku16rgYsUG1Z+wYbvC3Lkxr89i1qPXdXOri",
+	"WmGIBvwVvvsW1IaxyguZ6mJxbdhX+erJTI3p67S4/rO0WDrMODv+vpE4w2FuqftrtysQ/uac9F52o0QE",
+	"sB+B/Q0sbrYnvmF75fLrhYukG+qSzUEbVkIYscU43YWIUzvywXCxOFUYaxaXj8ifRdFAqXUUQSaFoXbv",
+	"CZT7xOHoaudwlFovVcK35aTGRo+VLlxkNoxG8nhYI31yErSZpcpWwt8oyUW0Z8CBdOGUOSd4mtzeEVMl",
+	"tXhy4jW8AyeiDfWn/Z/+5j/t7t0Tv4nE2EynRosnRy+7z07EDNkhyHOhpobzzeTZGUeGwyE8V1lCcRW0",
+	"FxCCR3F6qRVX//3/0hf//J9FkmZzvGD++T+LCQnUJptPlfjnH9105dTMdQEPknwhHDt2EcB+n4caKK1M",
+	"9oBhQLIGnB0eR0WwluNxrpK04BXO1dk8g9/ww5MXL2HeaqgxsvNAyLItMVO5NZpjwVwoUK7sPCtINK/J",
+	"tJnUb0bofvKXCVxkWWa+a+LN+D5xG6RKYcESCezpr+cJLDDGLcLdpDj76wdYzR/ET//xfyVW6NeId/3p",
+	"0xdfibYnzjsQSnypbCG00d0/qdz4s+C5VtTQcrDYpTdtezWkSeTGJbLz0yIQ1WvJLvyjSojw0M5HFHKH",
+	"yYlzlfxycaZGO6bmxybP1Zji+D2pi1gbrTBKS2kY3x9a8ABGrKQeEdseYQMBE2OXRdS66sJX3QuZo+0f",
+	"Pv8C3j0pp/Kcmqs/fqakJnnpC2ocjdDjdCozuzz7YyBqURjaX8wIdC/j7aVkAptdXuuFoEgJ26sv/rrE",
+	"HxhCQWtEBLvC7LDO1OD468jR1HY3XGpHxLtG5+nZ+WohP9Rr+9cNybcJMt+tNOm4QX6tzvSVe/OEXGz+",
+	"DN14hcsWNr+bo1ZAGyOmjWU6c2aMu5DNo7SIHZVhugSxhk6VpEK5cLcxh2355p8nafHoQm1w71dZ6Srm",
+	"8M25pBSJxGjl0jTzue5RwkcSRyJG1tejS7n8W85mubkIn+QKhqkS5Ak1F2XUQhvo8gCeY3rSRNRSt5Bf",
+	"NbdT23hZqG6RTlXTu4kqZJo1a20zmRfpeJ7J3EYi1eNsjj5H6SKVcwyJkNboXmMKRyiwyaLlJhi1vNLD",
+	"vX+7ah+fmrMtd1FduCTpjYwOAbUsWR1qM+CWm8b6BdydxSuVT7eUNV9oJQqVT+lGPsVmysSVsdHk9obr",
+	"dvzux7loe8EEBII7VsAh7fg0OnsucySV+Wj87p8OhjpOJrHQkHmKJy7Vk1SnkLx36HKdfEvcOaYUYrA6",
+	"J/qqfAo6DQpXcTTUsS2SUSD1x5BplMkivcDwdiHZlg/DwI/EbicSsXsHz4JRk0k6TpUuYjGm1Kc4Sa2f",
+	"bAwy0SxXSTrmjDxMacuUvKBhTcn5hiNdCDuVWSbaRis3i5nK+f7uNElNwQA2NHiEW7HhJ8lk3Yt/cG9G",
+	"LdgfuqKDJWiIYYhaZ7mZzxp/cdre0g9u3bcdC5LShjOlONjG7mvEsql5Cehmo3eb1UIeUG3b3KRwa9Yf",
+	"49+nFFXsxLbApg7NOEUOCUvNpP8lVzMlC3maZmmxwL/HECO22FS88wM4qnRYPj8Jui6fvqwMonx+XBtO",
+	"+IsbGKTHSFwgu+LuKxkO3tM64TiFAYcloHXDaZpBGK1X+MZ5Wqg8lSRcz+anWWrPVSLO5mkCHzd4JqoK",
+	"1FBXNSg2lIAiBQ54YBVjlShsiu4mspXU1aqh9mnsmZKWY2X8RbFEvdNUO4fpskka7dVb3k5wA80LlSyv",
+	"9GN4nbg06lLQuBibeZYIDm513+JqacpwVgnKTtgXrkxMN2pMmQaX54vgZj41JlNSV2/9pTlna3BESscL",
+	"kgKMSOacankQ3DPlDM4lkIrGTLpL/HfhJ7LOiNvEkta40785V2iSK61hnICPKg0NBaTNRFXd62hju0yt",
+	"4hmF/vXlVdvEpFbxYtAWBcscNFYyzaWp5MpHc/mr3amUYDjAc9Qo+cHFndoiHa/YQGUL4d+BPZkqafGw",
+	"IssN9/DmO7WCJ/uhORrz6xOV56JqkfZ8fI2cWC54E2wD/Ohk54BbEdzLQMSlUwAEE/IKoJQTeATgl7oz",
+	"AJ55ez5wJpBaQMxxFnxsxF2+Xl0dUTxjJGJvv8evlE2TucxGYMOHB2yot9jK1GhTGJ2O4ZckTydF3BPB",
+	"U9H2awZsjymlI3gTLJkIyXRYGGAlQDDjIlsI3wiFMqNxz+Rv0LIp9ZnquQ4x0N3tkpCFSPWZsmx/1urS",
+	"G39sZmaqYndESyDavXzYByUrlgnc8Gtpntzri6lBkICx0sVQOzWK+rBRmfT4jbLFmcwTQXoVWWNFm+Ay",
+	"fvfoldi52N0pcqUTC8EiTypnXMx1pqwNeUaWEgqSkHao/aJGfAhDCAlGRlKIZHQutdjti9o4hxrzgSLX",
+	"DzVQblW7KBFdnBFT1FgkSK+xFzdGqR4lslCxY77VzSh5bz7XHC+K4QSuATGVeA9n9qDmsVBXMziunk5t",
+	"zPwzLYa6OuSSvkzu1zLCUSOzhTWEUXOMziriDGfgEt1DD8lQk3sFUi+IytbGDTHBwWmpeMpijmdgOa7B",
+	"B1j1/jX4/ULPHZ/0VtQKXXUrjnnopcO3gkNeOuNwJO4YtqIWnrdQyHS7TuLshcrPlEamCFJPasGcNsvN",
+	"JEWeTDPfUNxE1vks1U/ditADtyz411M5fvNi8jgt3IMvl5cHn38hx2+OKkuEj49P/DLR37xWTpB9xCuF",
+	"Pz4JlovfpjU7piXDZy/KdaPxBouHDx7yCuIfrh/7RD+kRcTHR5WVxEcv3XK+9KtJY5gcw4pSGnnpN2m6",
+	"blzcTs3Bwkp7yeFAa7/GJwpmQv9/19jsIL09RfG34dq/NF2bJsCV/FvklIWzhPR5ITMbiX7vHtwO/d6D",
+	"Bw+u9dc+ePCg4rG9t2JUJp+mxeLFvACxJVSo4OYngnays2h4BAGRMJTq3b+OpLmrl9QW/3VUNrnyh8fU",
+	"Ff+Af31bmcRJIQs1VVu7E0Husu5bWPOxb7K8yDwnRsnIMpoLyX1ElHi3BVdfnto3yyFOJOKgdbtZApzP",
+	"ZioPJSHsEGEkUofVRu/QDz/93d+Ly46TCxmFwGi1rezOA8vMZfO4wGd03bjoHfrht7c4qlUSOva3rd3E",
+	"lLS+Vk1YOhwgNaf2zRodnJtGgcr6SxM+IvMh4ZY4gmnUD4CIrhvaQ27gGN5lnUKtxuFhy4A3Wr4mTzUR",
+	"clRVZMJZpBpETYeQiLPA/EsRw7/jTuP4nU9i+Qeg2e32qqam4NK4TXcNco8V+o0qp6zc8YCceCvDtWtU",
+	"XYwucpNhGoPdkq2cnKvLc5kXZCQ2meMc7ScnL8T9z+73u3v1AyIFpKxmqVZNjAP9co5xbGCj4y/4RG/w",
+	"Ad6Im5oUL2WuwQm1xYDcJ5uOqLb/PLxqO7WBVGYdVRbt25LQeIMDpsAbfcynry42lGoMHJS2/xPN8b1I",
+	"HGWp7omjczXtib37or374LPdjth/cLczEPFud8/GQ7SxkLn9VC2MTsS7f9wDjavNE+gcwKt3bYxhR/6d",
+	"u+Lk4YGI96ARUVwaUPK0VeM52vP5Na+yYYtIaAciPu7u0zci+CSC5odanpoLJX6L7/uDT/BxKjOXcK3s",
+	"Uc/73V0L4VDzXCz3PNS+692w693+VSwKpSufcHoNvo2hKqwrALusagGwZK2oBcvRilp79BdMpxW1YDzw",
+	"W/9qQ4kDNnWXWoB/3XX/2vPPjvfdv/Z3/Xv9K6YMUnmaSSPm8L1REQ/EG/G5KNrt3d/OOjt7kfjzfxup",
+	"yaRT1ckORPxmj9/dC+MOfEOtqPVmb1P9gAd3Qh+/apXj/f0eDX8F0tmLmfxujsh6VhWC4MlEG9jPp/vz",
+	"vGRJM+B4+sx5fR1q3L3dvY1Q5EbdRkDbiCBFt437ckFV5KoV33htWkkYpK2aY/llCWc0AzNN4FRCG05V",
+	"GbQx2WfH5kLmqdRjFWNon5rOikVEJhriTJbcu1pB69ANvge8JBIxWy7RAhCDXMyYkDFauizafYca7L4N",
+	"bi85JnY3kkWj3bE0HoCp1r1dFarW+ZJlGaC59Ns48DGsFYzce/ANzmm7APKm4PFwZ5Yn/kRT3GQX4HcZ",
+	"8jJR+QAjLWUu/nDaj8Tp7rcRPxgR2Kf4Az77bi6TXBbp2L0XidO9bw8w+okbwNatkFbEGGfKxvk2W2g0",
+	"hgnRuz2P8zbCX0kM8rPfLICdXRb3mhZitaJ41KAeInY1GecwBMgZob3auFEcdtQqib6pX/ebmMoiT69c",
+	"x+GuRcK++6f2X/3//7e/+eavOj/9z/+fd//vSOSQEZbq8D3aucqS3drarV9YCgVZf7AYyk366E1YVXLD",
+	"b37GkslyD85KIhJ1litlYQUnuVKJmUZCow43C8TpICKLklZHFyq3jSaNV0FYJ5wMep8YlDffEUZl4UJj",
+	"8P2d3V6/128Oc+GoPqOvO9CP/ItvoxZEgNomv9m4gOAhjAeggdDw2N2jjfP2bJwz+TgtHmfyrImTnCt5",
+	"kSpbkBHxuobQrnaCPue3UStNNsPFjEJU0kYPnc82qcVXpbZI9big82ud2WlCtqb1oXmZ10HWTojegtOA",
+	"BovG4dFPI/DDriYqekm4l5rPB0gJlaHvNg19iwB/8OE1HR++38sFE20k0gRDrJWzySOefef6xfTsfAMg",
+	"1gv13L8NHkOTNl5SlPnmDfkskkRupUwu3IAjgVEilC5AnDzVdJnbtLzeNs8ghjG+hGE1HYhKZlON7ymA",
+	"nFRJlUHDJVKofJpq4ijtOZlK2Q1QuWI729pz0Gd13YSO8aW3gUHeJmt4ql/zRF2kNGbbXuxcdSKncfz5",
+	"f7kUnwstLnHCwo5ltrUlyjk0RuzQ2GhXjvmjx/wNtgPRD9cuAb3F71uKGYePZJa9mLQGf9iET31bF6Bf",
+	"5spyqQ+phefy/pBXUhgopDJXTMDk0aZUtNHmnLImYzdEdrvdoxdWyBYYYLl0Kt5XYiC494128oReDSxc",
+	"1Wm8Pnr9TIxNqdSuSObwnoUlruyErNFG7PJrftuzTb5Dr/2OXwNzDJ6G0VjqJE1koVYyNf8GeI/HJndW",
+	"7ljOCxP7jA/Uha7gVsCGMRA1S98o0UYVCqiO/K5oYy9lkBUfdzZmgMTHjtwom7igmys4lXSzc+hLc8md",
+	"u5IMMlMJy0waKC1LLdZoEHY+hf/RruZGHDCqZonKz2rzM/yN/2T5IL9yENdKzK2zvmNJFyp/QdHbtD10",
+	"ihHNBu/GcDQjdA+r5NZHxX2Pz42xypvCbamqRxTH6h3iLG4QDXD+nsdZ53CXkhBZ0T9VRI9JbVZ+urc+",
+	"r2Co0r6hKxE7hzya0bnUSdZYmgeIC16pMgNLKGWcQSYuVQ4WmVnBYXi5SeZjOEYuKtjR5wEZJdy6aCVk",
+	"bqy6PsabIOGJgXsRcVkgjKqw+85q4G3tU07GLKm6efWbeIzTE5rOZH0Za4aB5dukorhW5QVUxKpRANCB",
+	"jy0ING0v1HmDhhe3ncRS8ld/a0QVa01FwwyMKUsaXKObAdjiUc0GsoVh7GswK1vyMdXNGngBhXfpKRWQ",
+	"gQBuLSsk7fJTg1IckpIZczUhPrO/t9eAi7RpUvrphu+NN3xv0+z5sw3fW/Q39Us0b+ET/dhwyOA2aS0r",
+	"/HZTQ6FXyGdQf97cCHEqbdoYLbzggEuXploCdDh3X+P9dSPjoDPxXi9czadTmS/I9DBLc2VX22nSwmUZ",
+	"4LiBnKsUTDEQAut0rHc/Ly3gH0pju5f7M2mLUZh4v8I9LjF0M3xRyAL4u5MRZBFXozdpOEarDa6nr8MB",
+	"vI2+L0kyy1pvl1yltPSODCLK7QmWtmlawSav5FFPU7tt0taNKWcLs3KNhpZsQtKOpia/lha/lPaZIVNQ",
+	"UAPmuq+eq6siqNeytA22VW0uGM8mS/48NFVscSdgUELlOqAzL5PEDoJqJWTjbjeZaTsRu/dMRgjc7Egn",
+	"NdEbhSdzjW7WO1b8+b+iNgBwSaQ/DrWyRTrlUil6fG5yrLGSuKo6HDvD8XFl9EwlyBX8JS7m+ujr0u49",
+	"ftN1MX8qqYpWmHfEYTpDHXP7nIeNYYfisCziY4tcomkAlsq65HFyG9jeUL/0mU6WZDMSZlmdmVsaWgoR",
+	"azCSIDHqFHOn2jHxpxhiknUywjct5iI3uoFooZY5DdorIQ9DZXTd44thXr9o468wfUrVZkAMeA8WHrQ5",
+	"qzoDtktRWChllvfWZlosG9QxZWRFHhTK8cvjf6nyCpmtIDvgkFQFi4wQ5wihitBb7EJvV6NjcSNGnqht",
+	"D/uPOyKXnHUgNc+4aZZBSNFaewHMWHpu1mCjNWejqzVVEuHCTXKJFcWEFJk5qxGtvEptc2aDWY7Qc7Gm",
+	"CcmkgKrVCsY4cjH8NtWQmpNv6FP2DOcoaN8/PPEd+UdPXI9PucPyZd9zWFJyxF19vy6vZ9028GHe+H7g",
+	"cFFvIi0b/3R/Zeslq9g0xw5O3LUk73gnEHHJW+m4OnCDtlXZpMuPImFycQ2146sxvBgz4d+qmaw4V8Wm",
+	"Ij6+O1rjfGDGPtrGEly7VuuUFEZ4lWypclzdJGoDjDyrdYe3pK4mSlh5S7+s1EvdJkrM8ekL0uGkdkaQ",
+	"UGtrVu1QlwteI32uHUvMfYH/UEIKmugiH4947+XTSMRn8YFwb+JPMwrw1IlQV7ORlcXcRUcHDS769HL1",
+	"lZGZTKwqDoRVrE+y5ukc9h3IZ46ZTIn4sWjiWLkaHyXBC6NROWVSrkwwbboLuOKm87S0aXyMHiP2Xz6F",
+	"MyNjXlZE0VAEs3LHeutLZyDSgpPhSo8Cmhmwg8SETqZK+syyTxdmWxs2fHpqinN/0v1Gc26lkrbokq3C",
+	"uoAETJ3UKsU7bIXu7W/aayXkioEhZFhbfrlS/SUGu31+fd1pVoaqJqk808aCFAYkUf6JS1pmzRe1Ej+i",
+	"rQ15vE0OG5obQ4JeRWZE4sYXKCmgj6/4XHnc/HUo0CR3NgZqBHc6TAr79ZIjxy9t6YAa13MbNgrrQBi5",
+	"lADOto2Udg7LZkmJjtu2bXq3fKPTPJdnW4/S5/bgfjUjHO72++9+bNc2DsMuKqva2an8eQMXIZoft58B",
+	"8aCNBQ2PGDgKu2yucJYthPvAEpoEfrDt3MhYu8qHXHe0ou/E10R3dPReSapEOPVjECyeH6MnzWBHVqxa",
+	"QHVLhyVaOuiNtBYck5XSQd0NfBNNXlfhCUNl3kOQhRl34vjxKBWfi8Uo3bkapVCSgoIVC5WUyF+O47YX",
+	"1ay9GkodK5FDvQSfN+DvmGfWB5GkF5jaRFa6hu/r/tEOCsgp5j3rCOOj3+BB3Q3u2aHmi5aAVTDvsJrQ",
+	"GibrVDR9Wit0L3EC403B4ajq78FQL6MY1MDhiN03YcM5K+2y/RbEE7smEkYW/tqCjXT15s9gE7QRx4+b",
+	"w8kasleez6lM+0QcP7aijchqq8gkxbLznea2V0U94fK6gEVs/vixT7mj6vBmApDxNq6oLdeaIAiAdSvw",
+	"YCU3vTrzydbRifXxbTc2m7wvmEs9X2ZiQ4cXzh27KUcGBFFdR096pfGY+1vJ3U58FEWdVuEQUGodSMQ+",
+	"CR1Do2dUH2dERwXxhOifAsEzNV1RPhux8nYrarlUbmTKBNm1acx8OeaX1OqxazT46bBsP3h67Lvyk2ez",
+	"87ZIZpU471sI3q6Et27WHhXhH5Ux3MugZmU4Dr7EcZsp6VuQDhomjwfZ5p3tDvKtBV5uF/R4m1GLGwGI",
+	"Nwp/24ZT3TxiaTnk6IYxQ2tKCDXEU/x8MQihs7/BX18l+DX++yZWV0m6bMgDSsHeMCrzY+NBCMsUSieU",
+	"H9vGhMr5TBRG3OuL3wgZ/AppQmdzCHRAd8E8Hixl3oKR4ALrKGAq1elCgOj9WrSfPD08Er/7bNB/sLPX",
+	"333QqSQZ1UfZilphP1tkVJ1gU4dhS/D4d9DaF1Inr5G6HzLAb1MsNP3iJEWXSEzlM7yDRLQ98sbnfHuQ",
+	"1SdAD+4ciF3SNChe6IYlYfr9xjIkj8Jg+C3E9uuCLRtTPMnd+F54kesDlJ0kR7RJI3EKmq1w7S2us9VK",
+	"PVj5fCnBBnDQJg2v/KbpHC4JWWAiHhHIZdlJkye//k5lmJUg2+s5cW3o4fdBNBH3WBtkgLLZzGo8xW1m",
+	"UFuxF5uD7lY2adk850iGRQHsIBK7XUgWTBpD1w+8Srr8Zf2groLdbQaTXaaXtQvI5Wi3XMLyBG3kXqpt",
+	"V9WbwnNaDVJXp9/NwhVfqauiIVKR4nsUec25dFGe6jdCsvVZaaiS51axDL9kRHB03qdn5/BvzlGRueJP",
+	"vRWncpZuZ7xerc1V2FHd8VM7WE1773KDGrK44abhRCRZT0OyYR6SiBPUrTWnEY1IyIgHlMWNzwRWHBRT",
+	"g3EJUotzmU1KEOBCZi7dgNGuqplJAEIeT9TlyB8+O5qYfGQhOTje3bF/3KPQXYy7I/vLUFPPOGxwVRC6",
+	"lV+8pkIXqQ56qGEtNU6yFbUah7WhaMDL/5CbxoCFb1zD/ONjdXnsm39s8hNKVXbhNyuxA6WAOBoxk2eK",
+	"zPzWCU1wF1JgG/5IIc8yaXalf6lkVpxvyRNKwdutnnlDhJhsih1K/b74fcsN4Zg+rlM5d9VE3E9ONsO0",
+	"rFO+R8p39rdu4HNhi10ooq4tFLEsuJSvj7awsKyBuFwP/r4Z6PxSo2vR35faXIcM6UBjt2huWxv/hjae",
+	"5ZlXLOL1jakNvVyTYMmjEvSRd2itCSgQJRpYrmZkdKkDNMHIJcdEzKkiZx90mNA1tIFP9zcCG/i2/Gdv",
+	"NOh++30/+vTu20b4gSf6r6nQwWa1Z+vhWWWZo41uv1Dc+rahms2To68jcQSRbbl3THMnoi1d4Q+GyuRX",
+	"wrBWVp6sKAxLXvw1pXukyW0NNWAk7GiP6QljJ3w3HvHfUVmwhu/EfA7GfY5BwLncwXqGSCM9LtTgkyE2",
+	"H/Gx/+Qt3CK0WE20yLe7yMEGrRKhMqsorrAteU21UokV7HDH+8QQyJfbDZxlWfOnolwzPNoWWGieCv8S",
+	"B83QZ7WnHunszWrI6/D4p+MLOPn839NWVHkR51maW9yftFWtqOV3cNspBHjYJ+VgynN29HX451H9zy9a",
+	"UWNbX/AA/W9h1ZTg8YmbgH/y1RE/+xYTftFXskVx0uULwZCKc73l8D2JeEMG4cU+MwlJtCdeE5ppTCcB",
+	"gUjALYSi4ULIXA01FhIjj1V47VPBIbKyVNMYRftyVQGtqKxxBTtmB/VSWYii6i6tzgAaeUJTgRml1vG3",
+	"0wXOw91QEQi8dCzb8XhM8Ux1SoaHISnHHWgmqFsELaK9jBFcyrTMeF1lphjsS9cWTiqBWxFrFRgKT6FS",
+	"KGkFvKQ4XN5LSIobaqtgB7BjmeeLLqwHs38f75LmCgGCJ4YqL8PbTnULlqkcIgbQIHULXlVtlnezg7Ri",
+	"QyZHTI+piWvXofFpQ5PUkhLH54g5Gt5PjZKFFxjK8OsvZDE+v5lWz6tf1etvdutvblrhGnJbhKq6mTLz",
+	"qhUFv8acUFvq0mjuxtG0zpX2r7FWXJOrRLXpOCzepRahUg9qLGDuXNbtP5sZNau4ONfhNvKbK5bDbkxt",
+	"70Vo2xHK5gtbrmtqf5ll/ddB1k8YAmlLZbmcqAdRKjEJwuAwgh+LT6ngYFnlIRJxZi6ZawJHjj08WEMs",
+	"IX3drGZeB63Y5E5ENc7M1Io0NT+l1ArumwH/ThfBuKEBQRCB7d/+9Hf/104kpC2thasSXZbClIlgy9jZ",
+	"DKi4hM6VdjGdFaZQBw3rGC6gW7zlNfLm7k0qZZvL7ZazbnBGTEnGmXTeCreDTST4VBaKCP5GauZGYHCu",
+	"Kqi0vlTEQWkTy9VYpRcquRl7uBEnSwKX31oUW/feRgEAdY9FIGFvKFc3uaFLTlK22LiRJU7U9tjSpbnY",
+	"Od4ymWM5AF8NrG4zbjCx3SD611eIqo4JgjRDj0xFlwBJk1+QWeYCwdzvN6nqXQ/YpFE1rvJNYHYfupKV",
+	"LmtPFz6n1WMcY5pZHYXFgqdBzQoRj/O0SMcyG1ENNbAH+LyAdRVXalvkWhmvR6EH/N/d3c/273b3hPuG",
+	"ndq8LVoVdYT6q9F464DxyqxuMg63CJFYbN/9qrqFAIWBmijCXbjlRMvQ5fkC1ri3ogxivTTp6umwfi7o",
+	"Iwk6D04M1nHrqkaZaTAnPTn6Uny1J/yonJJ5t3f33Y//8rc7J9v38t3KXpqoOhK7/Zv1ZNOzqWwWD/zu",
+	"/8vf4qHxzgE8L1U8lhjbGWGUINzaGyJNBl9tbh45gY++wG+a4Vn+5W8ZCEeD/ZPhZzp1AJkiqMmik9WA",
+	"RG0KpsUW+RwQ1NjJw86yVzLD+CXYv6UzF61iCsv0vLaE0lNzljbWs6B4Y7RMnKUUUhJYxp1Z3NnE15rE",
+	"n/nYua1kFB//c10dT//mSyzttH05VQ7QIrtsGEWzNBUJJpERJJWNSri15ugcoIMin6slJCJJZhXMTKNG",
+	"yBQEQNhdtVCWsMBTIJ5Jp1k4bTQ5bFC7vxkiN1TVNsn9uR7xNFhHFCD5ky30x1om6uYnup41uXysHxFo",
+	"GJ4Bu7Q9mLxWpkuifnGe6rNe622toe8b2y2hk2DiaB9dAYVaq7u0kpRQRYpdBGwcYWGkpXG7ondl1pur",
+	"fhdWtnMmfvdsQ2M8HeFHNGRfV+fQN8Ix87RrkElybuZNMAPPvcTD/DExnFsHLW9dFXA7+M9VdVJdCDgN",
+	"CWouTUzVR1rx0G4a5mvTMy2L5nrYjknUN9HXbSs/FoVx5cWEZL0XAj8E7QlbknrlBxXXEX0pKfoNeM0I",
+	"wjH90212/8T3cFg2Wv+JIt4PdeLf+faGwb3BVyMz2wjpxX/9gt9fUY8wCAUOt+U6+DE3igbuVEP98uw5",
+	"alUiYldRWvPpqSF/0Z3WdInTJtwAQoeobvNbhDq6tly2a3b1WG9o/7yBTED2kc2u7rCU6CxP9TidSQ6K",
+	"mhmLwp3I55TaO5WJ4swSvOVOF2UkboQBci7ppHCOr7bDUMfJDUTDpU9waFbY+fi8zFtBDxkmaYsTVYi0",
+	"8DcAQ9dUcswgjYxlDLiFOHGsMMBrId7u9iWKbez8VWljwyu9/Gb5Nn/Ii9rvPbjXWyU6bCUwLF3z18cf",
+	"bnSdl9FmDHeNpvd8rkkfkFqYedE1ky4CUS5VbhxqCACwoh37zJg4EvWyjEgZ5CbEupPtUnDo1AoiBtVW",
+	"byQO8CGuSwXPgnbXvri9+AAafmb0Gcfyh+HBblEJncl5MsCDwa7S9wzj/+z+Z/tNQfw3k0E2N0iuEU5W",
+	"UReEi4BBkBYE2Ze8lOQ+Rn4C3OlUhZDMvFw1FrVC+Vgn2FBKMd79MAQZ+vxT68ScAmRVlz07EJKZ1B3L",
+	"n4Lb2HUCRC1JW7vjZ9B++eKESrzSuux8nyZvd+jHTk/Erpl4QAdifQ/0SDFoKqoFB4GOyH3mZo5xOvZS",
+	"5RbYsdBy6jMe5hlUzG2QseIBie/uz4hL3pYDodggKTLKc8bOysFBNXNCrXWsPKx2NDa6wAzkNAdwCkoK",
+	"sngKBG6CxatVzHWRwlWm9O2Lh42C4a9UJGRxoFkubBL/1rp2n7nDX8vZIidVLBbic3HaF78Vp7vvfrw6",
+	"EHEF455/5588LFw81NXv4H/33v149e6fqMTbZ/ufftrdA27+fKnSTBscCvpU5Wc//c1/eiZzyFpLiqiC",
+	"g9OJ0KhDaCd6qJfQwgYi3p9lNLxE/Bas1pAon3R22rvw59XOuPPH005UQRIa6j/ISJxGYhyJ5NsDEd/b",
+	"oIk/nkUi+CwSZ99i3ntqq6gBsuBkdK55zKjFNVP2WAzn/f5dJfoOE2CSkSksEqeV37hWNWeIlen7LKhJ",
+	"enksEpGnwEujoeZnSiTAHAFF+EBgMEyeKst3+SkMXKszgiyYIOeiBqjloU7SyQSz0PCEdyJxVh0XOC6n",
+	"qoCCy2fic7HrVmL/5VMsCI1YSrSs8t2PV3885fWDBa9CJ/mX2ru49OqP7Z/+7u9P3/141QH4xRVfMeAS",
+	"fbwAElzRgtu2Rf/bRkIkWZ0QF91xsljuCEI4492dxR/34sgnJCCYIc0OIqWmSmqICKogU/BS8KM6IsSg",
+	"hksBdw5u6lB7tIElPKAaOoWPIq3CVQx1Ha+iIbwpwiU7fvzf/z0cWXwP/ghBJ4Y6PDDiD/D7twccSQaL",
+	"lxYLttlAIrsvox2Wvz5+bIca4s/q1a4jX6Jprx+xgPT6RDx6eShOvul+tv8pGwzEZ/1+/2EESBdmKqZq",
+	"ClnVBwIC28Tn4v/3/+zv4LBxAvM2PO6Iz/Hndz+27ej4Mf7eeffjT3/3X9q7O1PxW7G786YDAXCJKMJI",
+	"AI9KVIhZemFAFnW/MUxaXNnhUTHC96BeO44htcFZdY5FKkKUm/nZOZ1yYqZMZSoRuztX7/4pEtaIMMAu",
+	"AHyKlsCaaPCc/SpzFpqgqzvWY4r63BdPzw5+C2NlhjpfAaERYGdgY9BBllqu+e6Tkob6Fe0vvpDqyvDj",
+	"epWQWsYN0U8r4n/wDQNht+5agQKHM7jd7uF/Z1zstHr8lx4wP2hFrXKfNlUSgBE8deMK/nrhxobPvgoG",
+	"iA8em3n+8qn/K71Q5V8vedT4x6Or2Uk48uWHL9zg8adDrrf4GAWQZ0YX6kjmmblJ5gtsFbYgsAk+te2/",
+	"PPrdM7Hb3+14KFlTFGbanc/EKYQ5FhjTyjj2KJo2JOsiGE2z9TFJ7Vjm1biewOQIEKArEETP5tNtKqrC",
+	"65vXd92i4VsMq7kZ/MrmaCiqhrmQ6uLT/WsrQNlzkxfbLDV9sPlcC5OpvLmgHlClnk9Vjh53/6L48/8L",
+	"6NERp3j3D5/19kQb6reCFIL+X12IJD1LCRFyPhp3bhKRQfQXkikvYxnVFILFVMKeymWorGFJigENh4sQ",
+	"uQPTLKC7Q76pxbHmB7VvLMtxy6fdgQ7RyQ4OP4jbKoFwKVwQ0UcdlhzGiLwoC4JlFLv9n/7n/22ZBfhz",
+	"7M0Pew5FoPQ5VGEFQgq8CeHWdhLbaFrRAJR82ashLdW6JEDyOKhZj8rqJM0KldsSMNRnXQaxMIQMDvej",
+	"A82czHNSf+UZg129d73Ypiz+FzOFNtQmo4YRuXQRii6a9wDlQG+sIZkBTCtYfwaiskT8b+Jawtnu3mc3",
+	"yDj7N+hf39273+xgf4l2gW3h828A7JOkFkJekpWXE/56E6wgWIPprFhxeU3mWTZa6b/LzPjN6kL+HN+w",
+	"9FVusuuwotc6OajlcGyuzeVJ+TEGS3gtLgzt6g28OjNlZtuAWGM/186XW1090pv5dCpbGxyUPWZ2wUFp",
+	"2Hje3LWFK/ElzruFOiT1ju59Wu2oH21CLN6CBvYhW3gDGoqn38ku2xRzNK4D47UFcZcNgXBMpg590/DX",
+	"cdk8/PnV4WHZA75d7aXiltlf55RB4KPv5op/LvK52obW/bI2UkY9v6bMVf7AlT7KAHLbDD4yU7lQGiwt",
+	"PiYR6RcxndnoF2OsGgpFWxXODBM9eMbXHq9gvNdU7yhb3wSPQjPkkQpi6nsixth8wkoHMwyG5POfA066",
+	"46ELTADG90NEDxRpDGeTufwwsvqopEwOE+1YXRW5nBmEOkUrjlUFSQaUDwuAFTSczCQx1FN3f30XD4KO",
+	"y5BIkzdGLh6I2BnfAFFDlqY4xPcQrmIIvGdGuTEF+FPcpHWthprPPnRJb5DRkEvNYJhVCyVAnk9P07O5",
+	"mVtsGVbx0gx1pUlfZ7ZShASbQ18dhg2lLs1PJZ2DoY7nmjMBRs56QoMtbaD1tBL4ijbU50EgzjquavkI",
+	"+6ua7TqDyqyGOrW+2NDC6KSy2SZ3tODeD1xKyP/k+FzZaKitWV5dWsO0qNoxArJsRa2AKtEyUdJRK2p5",
+	"kgn+DZGSbtPhn7VdhiYru4TMr768vmO/VL6H8slmbDzgf/D9MQ+ifHwIHS0/flSdaq2Zpy8eNj38qvLw",
+	"ebkMwUNzbEzxRDcMxK3LMS1L+ctrt0BPyvWpTeAwWKjasMqfvq2wrptJCzdNK5saXajRGJS36321dZXx",
+	"F09LW5eM1nDV3Dip8HaKs1W2qKFejf+d81fAerphiDcFCGwOaknv3wjakj7dHseSPbA3oJRj/LIpQncF",
+	"zGZTTbBRLfsIP60tRH1yteA1N4ONpRAe+NYneV0qS7XSAXkzUAaogjuGOTTl3cN2A1+bgeORQx/PpWm+",
+	"itv1a3zrQuRhltoGJE01S5fmD4DulkU4LmjGqy3aRDoirsqBcecG4il8uBo3d4kfpEHm69oQFvde8E1Q",
+	"uqcxbaf0G0HctDktZKp9leR4kqosU3lzDeSpknq0JQ6Sc9asgy33UGVBKV12gyDHuib+t1JStkFMBwnp",
+	"CgXSel2YprRg59Nz9BXUoARid7LttuQ612OVw1oXi2u5avnqF2jybE59XErLq65DQEVlxV6/G/XNDM7T",
+	"MimtZ0t8827Hlv415Ziuzyx9mauZdLA5arat4VsLmaXfzU3hiHEmc6ULinslcGFJaOriwmTzqYrIGE5/",
+	"iFSL6dOy3E7pinj3jxClNC4kFXBrqvlL/Y6m7wWq41opTMYtLX/UYA8PGDPM7T0HQW3ccAi1LQ+WZWl2",
+	"wWhrnTZThjnN1LQBV//xkXiwf+++mNEbghLH7PIerUrBxPC/S8xsyI2rt8TXLwrTZPsnW2JzWgzV316+",
+	"EA1iN8ssTUQKQVxMb2YyoQhJAVcEpd9dni+2uAtxqo/h48abUJcljpaFWZ6VmMnivHE6/ALLrCsbAKPT",
+	"X3VZ4eg+SSCw1wjYYs4fK4F/pLjX7zf2ZVeUS4B+vnz16qWgF8TYJKoCkHvvwYOAEvebvUpFWjThk5+A",
+	"q05YKlbgeQXTD7TSOFR6sGy4en38xLlUFi60MmzMiQPzXA9Q1nuj1EzlA35nwBQS91pVm+510EH4q5tj",
+	"AOy+JnOyQjiD7zc8IK84VlSkhTjNlXzTXBUb7VUqb/6+RvIDIcVfnrx4Ll7SRyLVrhSdSRaRiHew9uwO",
+	"hbRp/B/Ff42BW/OjeKjhbB6dfI0ickxvpPzrgD+XU8Wvs1/UB9qTIec6iCaa13UrW1bV3FKruGgu03X0",
+	"tWj/ptMoVzWVUUNgUn65WMzQm64DsbCM87kqNZC8ElFtxSSTxbbS2NWmZeLDRb1qRW7iTcv5FdcQyk9U",
+	"cROQiTC3xNUjypGJUGwU1nY/YG6MIMaTQqDeUmYkqvwiHWMYFsWoNeDVkOEv20AmmmeFnxNeGa4Q9A2+",
+	"Te0InHXzXN3gY/C+bFhutP5xU6nDY9fSNiW8Qu01KimYDbOFqVhsnXleLEdEeqRKVosn1dKHhdKJwPIR",
+	"FYU7VxQDpxuwe28CMnSLQDpNR4GKXCm7LUIbGMcbwryBEXQv8xTN68Ay8QFEdcVQNSsjhpDIQp5Kiysl",
+	"acEBkFAPtQMkFG1sxHJygbjXv0uSU3ysinzRPQTFr56+U3bO+hN2vEVsHizGN/y9+/sFNlEi99tVUotM",
+	"nHZsRfvcFG5etiMyedZleb/ANy1GRZwZURgHmDJJz+bOy7KVZ43hvcuNvLbq8jK+9jbQ2r6j9ZDalDuw",
+	"guaCQNOtHZ95nhJf26J++pZGUgpJV3p8cwTDiROCqqSCUsmsLpWQKLtCWq5WP20QcU3e+FNtW2hA/v1a",
+	"y5tU/yApdCyzFWngc60hDUXps1SrNWNd/cZq8231y6XOwsFVty/yFNNMiZmSFm3cTdwsSBcK2Re788IE",
+	"sgPgdNAWRLLEwqDvsRCpHWpXPY1rJ4sLlZdOWgqLEadqYlhYIs/GgYiB3UEB5nioa8Zc1B2pOFrELURi",
+	"ridpQfA7Jhd2PlO5VQmD/cih3qjbnpuGq5IRCwvJg4jRUmW2wdpQsU6efCtquZFvzFCwx5eVBvnhcdgu",
+	"P/vGN487WON+2x3TVI/mdk3qIDFrZNSwn9pcroDGk2cjq8ZGJytyNCcyJ4IQp+o8ZbfxLE9BR0Q0CxfM",
+	"L21BwZRVQJ25fqPN5YoyuWutNmX5kOV6IGkhzlRBrgGcaXuuEbIbVjyCe4tQykh1muskQuHH39mRINbZ",
+	"WcG7cG8aoiIZllakWnS7Thro4pU9zzMW2nYrGjnj0m9asMb1Hbktbj7+FFTwtQPt2lIR4JrozL9hO3Vh",
+	"B5Q40p5rtJzCCaxlLsx1WnTColrw79BwKP75Rz6QQy2nWAT9n38USb4QDjs5ApGBgSErlwhIvtB+JHJy",
+	"UUcOqy1bwqAe6vIbeKkGsGWjiqTs5WKX/fHkhAjV13x1bMojP3u3k+8GFH3LhcJrEJ/XVIaFwa4pDSuu",
+	"rQxLTrym0rC0pLfo7iXcq9HKWoC0d1jEauJxmTar4lHHZdvgK+9saYg09TWSbyLjrAw/NbNQuPzn/9yK",
+	"Wv/846ZFbXBMz+ZZkc6yRSviBw+xuDH7Z1aVWHTHeFtzAcfv0ffeQ2xmG4lF3gCwuYe7QXGut+qPzFZb",
+	"nXu/8yYvl3i4m7zNtRiXhW111bwdK/fpqr9hn1f90WaO/qt+q3y7pOv6WWw6eX7R/L67deGp8dSXt6QJ",
+	"Vy4ghmuCBcLYlOVQzDKmvkzMZIwCH8FHzk8yUYxNntNQVnjn68UX/f8Ft2p3+belLTkOPXX1GsSlbxiH",
+	"TGCgSxXrttBsy0jRLUKFcJDzrHh0ofS25j1Y+/E5xj0gvjLRBqIsoOxJFZY5i+MSkR3E0yfPThixAFyA",
+	"4wIql4Fo5arGSEGiIeAeZhROSJKDdwY6N24k0P1Lub9OOoj8jevLc/Ln3sLqsbJmCHICxie4T4eaXkTd",
+	"z6VxqnJSbcQGJRhHmnXnoNQAcKoxJYLGTh2gNlK8VHVxx/ZE/LtHhDtBzdqd7+kfozR5G5dxoRg9i+VZ",
+	"EYQFpQmLAnXjjXzLNZu3aWcsWSW4noUjiR3h+2+jzXGDGxFkt7ZRrKr2+mo5KGh1xddl4z+nGDthdbkC",
+	"7IaRaSvCeF6FBIjvkPqjRUzhCbSy8TZcYp4VK8N2bic+Z4lIlgoEUeYKe8rUiI7T5ipwSU2+oeAhGiiO",
+	"XJMUy3+RQkSWbTZdvDpnVsU6PhupsYoUDxVX2Gi1UcWcwEzyNvq+3Owso0pQa+u9Buzk+s2s9NRyHO/6",
+	"70JNzktCfJ6W0/7cbfig37+/++DB3r39+/v9Bw92r4tg2rKCOBL0aEXomFXfrVeN0emgIGky1bBpVjHa",
+	"Aik0yIErh/G9p7ccoPXzBU5tGtQJy4YM3de0IYZdp7SlQxLWCPbUEW5SUCp9beRoLZqrWto8CM5aF+ZV",
+	"5zGOX64QFat3TeNxR8cHo/dKgk9zFdGRUgYizue6R6efcNfnGulpqGkNbCdyNeZsTyaAs8F/CZkkZGmQ",
+	"XFsuxhXqkYqNGSr0IDQzxv41jwMYo1PIQzn1oHtI7YXxaGcrrSBRuTf0oGoBRfd06pT8uifIT9RvMM7I",
+	"7SyP2/8Zjto/9INuRa3lEW/I2XHDjuf6yI0GH9BNZw+TxD05dgPCv76ujgefPQqGQ424MX3jh+SJ5TEn",
+	"PH/glDIkrG31XpLLG+7qc2lHU3O939kVr30btSBdejTeMPm6MckahV+8HE3JcXvXhm3wzKsjCKZwvfbn",
+	"hJamZDU0vE7QzmpylbjCI3ScB8z/69HOEUMGaUPQeHFQT02MzTxL0Hh7qrjSBJxibYqRyxsj10UbZXXy",
+	"qzD4ZlKpG30gljBrnJNgATBKUJHOzAubJmp0merEXFKjywBBd8oCdJRRx59RvnsJLoONHASqi2DYIfAC",
+	"dIijQJyYHquRexwPdbsss5e6QoXCvUjfY1npst0DYZUqG6v7l//VZGJh47jv+M/qFrcwxKO6Q62o5SY9",
+	"2tp7AytXyeWiR5U8Lj751UUKPqX8rcqDr/yDIG+LH9RytrjDWr4WPW3K1QoGGOZpBd0vP35ujnhB3d/F",
+	"V9VVpedPTl7Q0n7jVpaen/D61rxXVUPgtgkjST1HfPfTa1PEMTip9lkY4LjKGQudua9Xs7RjNeaE8g98",
+	"9ZSmznVfhCplg48IH1/Lqh008pbeIcatTNQ4JQjkGUOco3e45s6FV5sK3WxQtoE/zu9YQudsLtOwDaYF",
+	"j/j66xw6fujeXuNrfB6U9WkuA7AMP1LbLD+oQIx3FtwVcBG18YUQBeSTx7bw7U15HeJ2+o/p72Nu4m35",
+	"4CaJnLex6puBRxNA8xJs9DfniwNfO7YJY58QHV1pZ8DjgziCeLlKi59K467MM/V1am4W/cNq2Qq7ki+G",
+	"eWGyC+d4TadqS7uzU9+XfTI4h4bMtMwqL1zudvesuJQ5xKdEVO/E/UQNkBO0OY7AeVmuyeMtcpPBOm5T",
+	"vt57MXAS/rsoWNTm7dLbJsqgYiktC6+9W7LublW/hsHp0+agqht5da8v8ULI5ZeVmW9R22ULPWquSRhp",
+	"IFLX4YpE40LpAvMGKuN1y6VDJOS/JiY7thebsse5foy9Q5RbKyr/Pjr5Gtnj5paz0v+1XSJZabHd9pvR",
+	"5mVMzEpYrJvcc9un0h/Pgxz6huBOMjo5kHy70jpcBdO3niJgQ5N6PS+KZ9485rKC+r/RtHwp++uAYdAs",
+	"5+1m9e2rEE/dOue3zh+UxpIi4fDL/fHn9DqJ0Zl7fg45uGQdDZ5M+A1hfVzB+lb0/hxm01PcmAm78QJi",
+	"7z9DMegtrPk3AU3YFi5hfeVU15ofzIrVu2kxmRvcyz8npw4Z77qvPG7h+zBXXyanHnqwxOlYs9+kZX7V",
+	"t70Jtz7CvCKWcVaz7TvW/2ip3udUgi0NYymxPBY46d0rXf99pyceQaKSL0shfdt3bBnKh3GiqLQi0mfs",
+	"+wIDFlBI7OyS7msyR9aepQUJHJiKrRKK9ASTE6OKYdGYhZAFADaV9Mg1IvxnHLkMX3AWNn6oEoojxDEi",
+	"VJMv6SLmOlPWLteHS4uyHBya+zYikxoxexK5198AS652Oy4zbkJhCxg3zp7AYdqyEFODSKn9PiUPu4xc",
+	"eOS+sOCz/4y+YbdhbiAVyggLS7Y5Noa7l1ceiM1he/ylveaKLpdmJXPzeDI/i41pCwmmYm1qUCC38B4v",
+	"aW/smdwQi6aUEW8P+2h1yMnuKqF3gziRFd7xCiSEX/0N2rtedGyqRB7Mbu1y3qi4/M9V2j3JFyMXIb68",
+	"SQ/zBXD9QuVBGHnhorMFVoxK8kWXwPwFlg2+SV2o3ZWwDxTd/v7wEdSOjw1de5jgnRsgkqR2VKHAzSxr",
+	"ATxJY+nkZhcYfePBs9nR5tMG0HgFv/qKBzYODHX1gpmojjcW5PB2KK8N3BB6xQdNUHJCgwsTn0PIqsVo",
+	"f4eHkmoRVz7FPYw7mBhNVeUDNJU43O34AEv1QWuaQDK3oM0lOloexGaEtCk7WcVDKvLfDVwKVW+mbY6v",
+	"JXmOpnjHBj7T01yO3yhE7Vy4mmjVzDAr2k+Ovt45Ovq6dM2ydPag/9Pf/Kfd3b74DSQGne44sbdMYe8c",
+	"EDFKAd9jab7ICYA0GmFT5/vARCdfl81VeHHOxxImnYzbkN/BTeAv2gy1mSmwsVYS6jDbrU0102ETM1Wo",
+	"uIPZJpnBroxWUaWnwpieOMQhc3Gc3b7wcS8awmjct/COzFm8hAroYzOdGi1myE7HZOiF8jJ7/X7vsy6a",
+	"2ehU2g5JwxIhLsbnIaQpcF4++BwWWXqgm4Jj3bwazE8m8HRfphjwB2UvEZd9rmEaKnFUEHjAQYx2UTKN",
+	"ZumS4jaWhZ64TxrExr0txUY/48pIms5YRQLb1mzNBOac5UGyVOkBUdqpMB/Gur1VVPM1iIGHjeho1VzS",
+	"M0mFeCjMF9XEGCPRtof5uwl8fhj1vNkVS9Jx4+3qqjvWI5rHWGkhN9PeLQZO+9P7Off7IQKlA4xDFyoN",
+	"wfhlhA/EvjTE8Dg8xDLMaAssxGsCqpNrYrrTBAO6yVSAmRQTpZxYkt5ywKqTcXyR2WvZ0gnVNvqAoeHv",
+	"i724fsbV/OxfV8T1bShstx5jvZFtzglmHL7y3qHQlSSAa3yGYWYRHGhCFYDdddng2Mrm3sTbisOuDvj1",
+	"0etniHHkTJF8M92xNXZL6ccIGSDiyk8QEFxd15gYmodx50Jv18df3ix0u2ppCrX/zeA2twHyXBXhvRyn",
+	"XjvSDdSzcd37UP7512ghW3eaGyHAtzKKUe/2Zt6RbR0JT2WhrvEk3A7e+cnYzFQFzWeu7aDEQcKlGQCB",
+	"ewfcwMe/YyWWTasaQ0fHc20dRhI9oA6OqX18hD4w60Pa8dkhdQTjrfLarYNLnKAxyyRWeCCGSQ4QbroB",
+	"TA3SZEdlmuwNlG8fkIxtCTs/LdiMRrw7cRHkLkzblXYFIQ2ZCruq8XsXoAw/EGKEq48IZWHu+MLg+LKN",
+	"fHfOZ1KCtiCiBGNNYEvRUJ+lWGw81gprh1YEtBpPFpzfSdd5zHIslsuWMApp5znW4mSUB6O5KacClc4Y",
+	"oa6wiGdjSicJ0s3YQTTJ5kpXWm2a0D4zWTperEAekoVyTsr3AA7YOHl9CeURhxYOxM868msTUSK7wyGA",
+	"mTcdeDIh3BybqkTibEDZJEtS81aswABoDjTzTa1FtlyC6pJ5vhhhEaftTyh+3DWUzsz1CKuSig//bz85",
+	"+lI82+2Ld/9wt7fX+5TLvNDRTlLgEtmCtL6hDmFQXOkbPvbOGbsQ9txcCueb2+uL37jenz598dUd6wYR",
+	"VJIpz39oAw6wCpcwCdGKJO6VbbvRmNzeoaaenJR1isCuxViOXJiXrU0BIMqBCGENWWOTPs8dpTg51CW4",
+	"igs3xsDmRNmeeE/GQOuyFc6F+2YmrV3FU/w7421b3VJ3o6tl/clZc+QUHHdZrJoG011FwV1uP7Wja9pJ",
+	"7VYrnNq1i5vaLdY18KVs+MW6rjeNdy3Xo2ERl3atYfejGmlWSWqJCGubUJ12sP5+8cJF9lP2pOIn2sQ1",
+	"kbt9CP6frs92X/rBk1RdSiNG+tegUybiXOUq4lrl0xTx838AQeWHDS1k68jhmhuLnRhbUKsXBjaYEkie",
+	"G6F93aR0MGo2AYFytrMnlMrctrtkyZ+xJvucr5cKaCB/Rfck+RAORL8aH7q8A9oU2xUVjVrs2NlyePzV",
+	"lsO7jnxWGtm8ca0ZENFn0TmLGiaJbahnsZBSRURcSiALNamyh2XJ0xPQUhq8W+iSItx+eRYTSJuNumd6",
+	"NpVfSJuuMGD/y9+6vQJ566u99vFeh5iAFU9fPBSfi7u9u+9+/Je/3TlB0ebpi6/E52K3T496UPgQ+bRN",
+	"qAajOHnoGgwxx7WZInweCkttrDZcnBuQsdBBnIRK0wQxm2MSsUYYH0XN252f/u6/XDrcH2wc2sZ82FUC",
+	"WeQGBf9DgRPwWTqdYUIr4UG3FUhPwxLt1abJXGbwGWM70pdQ3VDE7udyzsEH0VCXq1AOEwqUa/BLYTtQ",
+	"eXFeGE67dc7ZgSjXMoAUzecaYfriKSSiOggni66FqcmdSFxCOqkM1nVp/aqpstC/v2RdZfPwfbJMuIlu",
+	"ejA8tR1S++WDL6Cnk6Ty7Cl2+RR6rP1yzF2fUBqmz6TfvmJXoXQBwZtOH2uGEaVdBHMHWEvnOUYs8tfC",
+	"FuCpPUeficQS3+fNXljXnT2Xe/c+Xe7t5MvD7t69T0X7XF2VyP5SG41w/Yg9bCbBYDBJJz3TjQnv1TzA",
+	"FZLCJhb61QWnp1KnE2WLFf7Ll3mqC3YdRajdYFjM61dHFA5pYFZFCj9Kh/J4Pp9KjUiiCIWLGZigmdlV",
+	"uUDcbBUN2xnHGI6itBWnp2mWFovN6ZXo6hl1UlrEaj8clh0tf1PtGO4sWpfV5b/X+oZg41cWX3FCS5qI",
+	"NgQzOE0RqQUaW4X0iq021zChCjie1AYMChKDDxX3h9ysuACASVADC2HreHOdM2qy0cHy+tXR5i4T384I",
+	"qap5cbBiP8XaFk7Ky+TpHUtJhn/C0BKoGHT37t0HZQQLPL8DAdwTq3z9AUaEQw5ttKIWUo08nW0BoI9j",
+	"ICU8f/3qaMAAwvBJ5eQIWSKeysTiFoUl9KF4/vf7b7v0j73yH6/cPwZL/2j/ux/+8Nvut0vPO43l9mH0",
+	"I5hnI805yBSZrfNaurf0VgEE5Veni+t1wjRpVYk1PBCRL+pdOWAliwjJbZlkwlVY4tXR0l1R534rpCvi",
+	"BTcoee8Ra7ZwzrhPrg2jDRpfO+73z4R+z4xtPxKXL10mby/9FORxb1dGP7hClsphIDwS8jHH4koYGk7/",
+	"L6zKJgc+upM5Pb0mtfDsEPmkdxe3qRyGneOqU3jHh7vAeCNX3mPV35uus3oLy7eaq5pfhabYu3c9pEXJ",
+	"VcIP+w2gFlGLF2zFNZW6W0q0WW52t1WnF95MJJgHWzMJkm9QjMM4Vq7zRloc7XfkOjhdwO6iEcly8Xcm",
+	"pCVSIOwbPgJ5iPuA7U7nhOetxakSUhsUOelGKAH9S10CLbTYRmqFr05AxEiBOwuajGijLSRysUe1SAUK",
+	"V+5UJiS+k10/zrVzAtuyEUlKoEQzYwuvjoDmId+o6hKH9O2gbfyPpRP9hoR9QlThIF5W/BxCcK145dgN",
+	"Y7kOD98tjsxLvtHIQmdq/BT15C39IPBhaRRhVZuFldIPQjEashAw2oKCYh3KrGO/iFOw7EkFRS7fEjR6",
+	"bQKDY7+MZzCfzTZsv8nv1LiWgen8tsqAbwr1GiwGqr4/Y65LGf1CPS+Hr6yPV6/mff0MKS9Li3oNCkbw",
+	"8v9BMjYij8iGTP4ytZTE4UnrZy25e1sE9oyTQ7dOV94GEYTk/NWYIOtPe7LqB6p9vV0Zh5sESqurmUQg",
+	"uFpw3wbdUWas3ao75/DZJC/Ubd/v4Zu1fC4zzfEXs7Iw88bKSr2Yc4MfwWULbzVz/xEYjFeF1yIcXX0r",
+	"qmQ4J+Gps4P/U5qf4RO6n5W/cYP5b+gRs3MMGWlOGfClpTckkNsvqMFgceyxWgrDdAEujStJZBJMsULB",
+	"VWLZPC6yiVYrJj+uGOYT8ano2PjNyJoy/LOM/SBD9qa1BbnNY9dLK/LPTqCT4O+n1G7DmG9gBKigCmyV",
+	"7O06vVbKKLvYZN1vCExR8ubNbvXwqlu61o/dPcyIAO7EQ46Z+3cJWFAwSIADGrhje+GVsI10s3RX3DR7",
+	"cdVl0GDPLbnNHSvcdyL4Trzmaha18d2g0tgvdtHcAlG8CoKpUHGCtklF9qSQWtFeYgECaox2esH1VrVB",
+	"RB/sugvz6T7U5bc5eYc30rUrULmhrqNa/7J4949CRmiBVzIBGe81XqFvbkCr7s7bMOkM3v5AnGRFvElt",
+	"HSgs96AsJc2lxuu93Dwpeu0VHhztJjb/imtA1XARc6VEoa5osDNlsLAlVX4rcpNBtCGGNOfAmsZqVohC",
+	"nkYiSzUnjUksmpPnqTxTIlfFPNdcFLBq5avaB0Pfxx+Hw6t+vwv//Qz+8wX85wj+8wge7j4eDq/uP/72",
+	"t41ujVegPtwQyusGMv5N4PFWxF0ELwSKEKSAmzkIncbDu7GVmZGmSwTZzcN1Vroh7djMtnE/wOtNHeCY",
+	"mudp1ThXRU+cnJtLjUFZiK6LQa1jqRnvHIszYy7vholF1GPkCsPxRCrSZuMxgM9uKOJAnvYIwyFyk63g",
+	"B5iskdoCA37pPs/SMUz13KRjhUVKrcWSlLThkN4NxldETijTQuhchZkgou0MC/t7e75wFQSuiSe+yC1a",
+	"jR3GqsfYlLniEAbXxOmCAm3MPO+qhbJoSGzAX7KqsIImDi6QEfWyKgN9K4pPGQsZI7NhoDh7JvZEUA5+",
+	"u/xGnKYaVqrTE56p48vczGVaXcCCnQVAYLgrwPKDEyRS65djv3+XOybLfNnrHYu2HxzSfn9/9VtsFae6",
+	"FOKpgqRtM28+vKKNA4p40yJn8t88AXgVttXdvXUpS81AV4453IKI9s25gUXAqmsIbjC3qmRuBxjmoV3q",
+	"MWVvO7v3PEkLUeQyzfDKNZda5U0eIDMtGxSAqg/xZYUZiJjcKYPhvN+/O0ZbPv6TU7DLzeI3YNr8Qm+o",
+	"H5IriTww5bsVK5WjBaK6uKS1eKhpPDJDM73KeNo0JEZldlRn55RlPdRL92R0exy6pIn9bUmiufQmD6SZ",
+	"qc4emkv9yBbplEMut0wLKcysmwBtKG6jdKcBG8CgOfD4OXOEmEfijfhc7HV6TeAbp6neuGqm07i2fH20",
+	"sqimG+ONHCTu26icRjDEeveNm5ErfZt+lFNpVcbF4NdClkO/X7iXbwjhXIWqbI5ltxuib7NvLgxwbnAn",
+	"F0a8UWoGfGia0r2TUIwyXFAwJ6jDFEQOC7cgkbtoyyKSZE/cTjYDnXGqCpVvtMAv/dvwqUm3qe1DDcA3",
+	"TeMo8rkeOzG6dkLzuSpdIlSPRCAyz5SK00stdqN+v+9WBG5LULrxfZMlyhb8AqJewho3yxAXDnV+GzTQ",
+	"EKz+WnS5Cqqht3qWm+BXNaB8T3iVAYZLFgRlr8turp6R9wDWfy+Q/Cks9pZoCSui720DtZwwjpRzkCXq",
+	"IiWLTVuLn/7u78VupwZ043Lf/NHaFtfGqkytgNSDyv6Us0tN+0OrECXKWLWBxoErhrOFlQjx+MO+V+74",
+	"y/CIc9AKdJaZGcxrFUyOJ0qQcZETEVaUHWD2Xy4RBBAmhYBU0FoI1gDaOoKyLnzMaCVyPRJxPrLfzWWu",
+	"Ev4uM/g48NNyhPpUBb7Prt/aelKk6yfIeYxYAmbEU5TSm/yoEZe88vhjqQ0WAJMT7QH5VK04DyGROhGF",
+	"XUHkPyyGhKj4RGUwDqMmk3ScovqwIOmtHUuY4yn8Zwz/wSlDba540Y+pvhROmduAzADECooYAg/9RFSl",
+	"GtKMJimW880WYfiL21q/EbVg+qjllx69KcvJaBIYEJAaEEgrap21otaiv6E3o0p1JzyY6tMnwdCqvwSh",
+	"90s/nfhBV394apafPbHH5XyqPx0uPfli6cnR0pOHS09+t/Tk3/aRIwR33c+AsL1tZeBKIuiafIR55jiV",
+	"/4IQDFJX9bc98ZVNKOpSJeElPE0JvQ9ftp1VivsoFPKWX7gZrPpqo6k/1654cTPwGeRbIF5tW2KONB22",
+	"CA6+P1dbQ6Bti/Zel0maEB9xl6jyjn/XlbgJNmtj7b5WPmY98F6ApVOBznEeXN68cuZRJe823PzKXJtu",
+	"M6Tf8FTM52myHMouu5PD7uNvv//sbTf8c3+bP3f33jYafAM4pENWDxuiek9NUZjpaD5byrCCv04RR+lA",
+	"xIWZjUDtjAdhpkBdF4VUNJmfqdy/Bn+I1944cGlC3u/7huFzB8Dk8asNGbib2hfY1mtoyj1iZTt48pRb",
+	"rq4Og0XdGLsldEDSgon2714/i8RfHv3uGcCYI9JBVCZRePAVEpYx9XaoPZoGWiaNBtJJi0VPxEigLHg4",
+	"tZbQpRb48PUBv4O6bsylMysKsCt2r6YipxKCmLxxaTDgFf0yuhCT9GyeEz7/a0ZeLVQ+Rf6CY0RnR3pK",
+	"qILjdz/OsX+41+05dAC5e6Pxu38Sbfwba+1CR7sYcTyZqDGGSCQTmo3E5kHcSiZQnD9XAXtL9STVaaE8",
+	"JsMlyr/lAgpp35AZVBteeAr8nHBwOezPUJdKJzD4TJWJj1WorzZMA6ODhZULrADaE7HTUmKRYmF3OdQM",
+	"COH33x0SGUIcSm0vVU7hxZYWHnqLxKmyaaIYGA1asAhpM9SZPDUoCS4AYGM8hrYKBoLN1dk8kwVbfE9e",
+	"vBRjA/a1NLfYcYlo4ZNn0MjtEGuppxVQNp41bAiu5rnJTatPBWanWpzRaLxZyFB5PDa4IfjNE3e+wgCG",
+	"6z+n99wNc7MguZDyl2f95/82UpMJiN3fqGx8/tPf/KcTvCWK80uZFuqg6UxseZeHprtaZpn4XLx59+N8",
+	"NN6AMWwY0HW95c9HO2zQ2tToQo3GMs/Mdbv1DF49gjc9MOYNUvZ9JNcm9tGm1Qamtrnxga6fVyqfNvsL",
+	"+V68zmRVsyzfTigcv7tqI+sxtI4xlDJV8HlQc97ba5eXunZYgpMaRuZWD+Eau6/bDEcIjbJaydog4WBL",
+	"QcCZTcp8hBI4iM3zae6gx/B6D+WFBkGBvsC7ljkXSQ62KRmi/eTkxc6TR0di935/795gr797X7z7h/u9",
+	"z3qfMlQaSySpxfvJJPNxMdSosg8I7gMbh7ZsG/7uBOGdqFy02VQAQystB6Dkp1NlGVsYZQZStHaHmkR8",
+	"t7mlgaucOQMKuJt8fG6MVZjbEeOGxYOgKo8r5I2CoS3KhsOVvLamEJWCW4pCH+p6FGsQ0hSJyTzLFgKx",
+	"9rDUc7BcEOwIOb7B+7FoKzk+H2rC+a8E/EghLYol40JquM5zIXfaP/3df7n77sevO9BQrmZKFtLlzLUr",
+	"sHgOtGCoEbiZFFwFtwZ60tp25+q///sOwD5MI/Hn/yY+F1O2ITpQPEJYiUV73j6GV4//+7+PCCiLkARV",
+	"AjXC4SZgp3cmEUECBAZ5xutxzWVFzqai3e89uH/PvY1lzfeioX69yR2DVLuVMDTUm0lD4kMLQzcUKjZz",
+	"1gRZVMtxd40J3kQ4wZvCFmrmNXAk0ZJArVC6YHtKlabhRG6skm8d3OcIc9vE2gZJ6qE6yxXpL5NcqcRM",
+	"ATUHCKWMD1ovQq2Ns3PugBsX6ig2SHlYM4IVtvZaq01X3E0lEhedGtQEWy2ijEJ/7jJB1mwG626HBWUE",
+	"p7qbyVORK7q3ONsST/1pKm0knpy8ELu7d+/tdSKB4SnwFbm7D4RWKqEAntJ6wcZ7slHcWnghrW6zaNGM",
+	"KIb404hyMzaJioTqnfVEPD3beQrW9Tn/7x9ms+m3cS1IkANXVoQI/p+6/+dvv9+N7q6wCX0t8xTO+jO4",
+	"/7cUdL7BHO3dHfvHvZiggi64NTGZ63GIZeW9HScPBwKiLkU8M5cqj6Ohtu2rDtQZ6L/7cSqv2leRuBpN",
+	"U93543iXtg//xGbsVGZZBaqIPB9DXdHcD7gLEkzAYSPabNk1E/Kw7Oz2+r1+J+xe/FaMd9/9eNVYlaS/",
+	"afbT7oYvrgCdqxESB6iOATh1vNtIUV+XVtmaJQ/rl3PRGr0IigUSfCjbhSvp+mMzzyhn+VTx2ob2uZm0",
+	"IDlPqlBs66xxPLqX9CH/9Ri/p7F7AfbncDasLkRyk5TX9y0Jsom7Yw2aYZJOXFrPrGn/f/MQwcb6735s",
+	"TzCADoQ/xhLr7PA/trUbYEtNVTyD5aOI1FM5frPOOSFyY4qgeDyDum45ns1XcpNcjJAeN0j4A9mree3h",
+	"evvhNw9/oADQMmrUeXlZy3EgB7eAFLkpFmTTIt5acYsSvXTJM8eGWlyzsqgWWi0tl6/ZKHg5cNowc7w+",
+	"PdeR7TKqZPUIhVu6BrO07i7aMEsvJK6fr4I22x5cvYXmKI8p3A/8pqvIUQPEOFVjOadwBcoxbhBLg+iW",
+	"ixpn3/TULW16paHl6VwTNbR0oJdvSZD9U5nFWBsOFdN4bHSR6nmqz2LRPoKnYfJUOKLwcuSGiBL5+81v",
+	"Sd/kE99MhWCCJmvzukHm5E0IKZz25ppDdW+vcchWu9hia2+lIviKCjZeG7kMCwZsjL12TRWz53QNVz1P",
+	"kaDoatGPmsFNblS4tB/83xqB9Mb348+KzrAJ03cJ2sE2NxHSNwgreiR1kiabhGDXiAiqa6sVgIM4D+UA",
+	"S9mmuQL+EuPp1jbD+K6o2DY3MpVXjEFKWKkjdLqu0r7Jdur9tBSsX8iMgVbRmoitCSqkONcJWoNSK8Zu",
+	"tSq+KAJC1KYIVIetIiVN0Sg8LIQse8Q+7Jt0NiPlha5pAdf6gVDTGVh+S/iQRoys6Uie2lHTwvz5f/nh",
+	"N8ePfiirlYzfdMcyG8/J1OsN0EuCbdPotp2+R9i97lh841+sH4uyico8V1KGp7vIEzJvw+qT0ggG91RJ",
+	"W3QpLs8yAdkeWAeu/tjv3YvFT3/z/4C/Fn/ci/nnCroM4msNNRoFSMaoF97CMC22IrQPs6lKEylUIWTW",
+	"i8Rf9ob66Dw3U1mYs7wnvhD37++L9l6/v9cRe7v3Oj1nqHBjgw53d0D5f/dP5OCQQ71svwiME1dgkCDC",
+	"FnKcG2td/fnCiMyctfGvoT552PGlNeFxZRqdSKAHHudL3wN65qUWJw8PGAJTDnVJT2bi2AdGhSPFkdXa",
+	"20D4jEpbiSUZ6thTw8jgPtleHQaZV9/2XCfO74LulYCqXaSKt8DY+RTGJk8RQSLw7ag8Z+8PtrHyCAk5",
+	"NZgsYKyCW46KcWhTYTlTkysAhZZanMts0sSmeuIRLgfplgRHjol35aG0ItV+OUblYwjxzaxZgiyapFeK",
+	"glj8CgJYNxLnyExGUyXBsVOPmqVY1s5AfC3z9gLI5l/+9t0/vfvxh//vjz/8sb335//aicSf/ystC0a5",
+	"wnQyTXQjgGzAjafhdWRn9RoouAtDXe5fJNJC5aUTSgoHtS1yBTdFu1S63cL8+b9SNBDUc2GG7YK1EvS2",
+	"aaNpUgAK+BhjaerT5KM01O4s4UkuRwrEnRZE1o7ETx5WMbQ1IYkyf6B/8d97+L8L/3zBf9Nzi//LENyV",
+	"LdlQ2PZc7DkNwf/9RF+cfJcXf1V7tvT3XsNH/7b2bOnvpY8qDxjx2//9Eub1YvIMZxVy3hczL39vFZvm",
+	"I8w8RQvmCRGzE6eRT9Isa6r8S6qxBZTxDaBWHW7+26hV5TlNyRB1N0b1g6jS9dp7iVfnJgXI1y0RuBAn",
+	"qcqSEqCghDvgdfugC1ZDHlCX5PQm3t18HWilEoqFcxdfYRBBs/lyaZdhcsT93FfaFPwlRMKdqQRs5vgy",
+	"jaIKoC/iYNYDQW3TWvkCVMgMhhptPoKTR8XdgZBwB3KswaUpm4SLzWglEvTlCTMZavblUYTeA6gYlWNl",
+	"JzuT2sIUKEEW7yfYrfv9js8ZLbWhwIaxFzUR5TKheaznm2mc2yHvfhjM2LVfXg/ryS0vH0PMJRrPcwis",
+	"g5nQjE+VzFV+OC+aQo3hscnTP6FkNBBf4Luk+44x5dclGQvMzbWDSuYwxkeU5R/BlRRX0v7hDcwW59QU",
+	"vKVgO7A/CDK96rrZdilHlws94FagboVDKrWI86KYtd6+xcj/iVmeEvYPSZEqpzJhNsyIhsHjne9jGRoL",
+	"rllM6LFDLSs/c2aTyku8RCpjAve4Ezgr0cRyPFazQuqxGmqq0UfhsFbBKjl9kgr9UFORmGUGA5CxFnhY",
+	"o9viyZvrN9pcwq3x1SFHUWCTUlfy0Id6qD/55FEQXSGsXFhKb0cpt/fJJ+LQj0+ATmmmM6zyGMyFgp4w",
+	"DiQRY9j2PJW+cFvuo9OtgGPJCUaz+WmW2nOViLN5mkhEzCiuC6il8NswjgSesEAI8bXAxYZ6lquxShS2",
+	"6QymWvnCcQwTXA834VJxbFGlQOqhpg3lACNe5VLHodgfhnsAwcwHHuPq/sVfiCOjL5TGZ0PdpQoYdE0x",
+	"5mauhNXyDcRKQq+vUvfUw/i3Y1JQB8IbsWJg8ELI7BI3LE+LwoP0k5ipriTWD7TplZhwkVCZiSQ9Q6oV",
+	"oh3v9fc+7fbvdvt7r/qfDfr9Qb/fI8vTv4s7A/HS2OIsVydfPXWnZJqCRoVlA2wkrIFm6F7j4GoqIWDL",
+	"mgEQh+XgLhKLqrofGcZVTdKsUHkPWjqkz63SBWJmwKyUiF+x+//fxdAgQv+KMcKP+wWylKAo7vU+7Rzg",
+	"uohMyZmvcBDv3R3cezD4tB93AkgWHjNSkYfKGCD6iJbTVJ9BS3T8YLuwMsKpSRaR2O/3RfzdXOWLAWxi",
+	"TL/hgzL3pwfbXZrULAF00zKd453ZBlbjsqwjwk+wHdx78IcJ4ve2J44NAZ/A+Z3NlE66qGaWlSRd2Dxw",
+	"DtgRzEbww1cqoVbJmkGOLr5CrYjTJN6JrfouJkgR+CSRhTwlt4KZWSELaGvvj/fuiq7YhZ3nbR9nqdJF",
+	"JP5SXsgT5LAi1VTtKOItxxh63nJckhdaIekjk0wTJQcIw41g5ZI3PbUiRukgPmDXuCsAgpYbXEUYErxX",
+	"Onbcy9YARwDRMLQGc6PezOib1kzGuqCFJMgSzyuVLnJkySUQeASEq1RCX3XEOe5KOSRZxDjV57jedJop",
+	"fEk8efToUff+vX1BpibbI47AVInVQ8Vz+VyUIU8LpmgK08Qt8rUyMW0URk3BAvhjJTrAsesIREpRNZXB",
+	"iSmzLHJjig6OHkxdsbOASDyPqVYZzoglKkHyhDs1gi8cOikWUlAbxK2BQHEr7uBpP/aptdwULNI4M1Zh",
+	"TaBLlWVIaGhJIFsGrN+YaldgrAT25qgcr8scRuvg75EnJ2ZM17pfM5IFTtUBU68V9tzMqSECEUrPtMmV",
+	"mwyC0ScGv4VZRpzBm8lC5QIuYLx3ZZLwF7T1yNzNJJAsbOTThCO+s2zkrFN441OFbVgJpKSSdwzEriiM",
+	"+HRfHJ4cPXkiMlUUKrcRs3NikD0QpUbwnwH8pxtHNCWZo5rExgf6FOgLvxVtkmhFXLIqsCm81ikW2oeW",
+	"GSsNWgvg0mSuePsTd9eBk8sO9aHIUlswNUotznJz6SmNYILa8e8evRI7F7s7xP1gwO4J39hxZ6hTS/uK",
+	"3Hcmz2DlwGiUalQ2LuViAIudE1UOWLGJRRveFTb9kzoggRIHxFk9gT6I02N1o4PHDBZyPM+tyTmSdwYM",
+	"wcwtdg/iqFZXxYhfqUCY0VWRW2SW8HYnSB7Dwj102VkHEIQv45sHNAs6EYzRU6ipjardlZv1XF0VR/SQ",
+	"A4XPpR1NTa5ivNvde19K+wwednri90rN3Ep5euC5fl7p5fI8zZACy0YFgoXMsZwvrqXLc0f8kDjYyA4d",
+	"Qfw8aHWAtniwj+L6Z9LN3LHSdlzZexZtkIL5SKORzMJCGzEzWUZyJPSBJ+7Q/ZxaYWbyO0geLhPs45fy",
+	"TLkVO0DqKc6ZvNKxclUgiIPbucKce/wXadyEiMUbGEEf+/0+0j0SPZG1DyFJcwZYxBsF68Kj1h6EheM8",
+	"4SLhaJOhrjhWSV4vhfUoUBpsh/LILs9NpiJ/svB84JC+qkoi0FipUoWccJzJXIUnmfYV5BsnAhFMGUs7",
+	"S8hS3lJOPNNzAlAalS54NsTdUHcbatI3YLdjkZt5odgKsoWiechYU4jLqNDwMNSuWCD1M4CB/EB/iB9w",
+	"C38g4cKKH1g0+WGof+h2u5X/Dx+F+qv4IeTg8CnKbMT8mWFH1SqgpfEcghV2MDThB1Jd8FveRMF9hdqx",
+	"+EE8ffLshISznCnhh4p+19aGZBuSgjp+SE6MZN0woB0bhS1EPOySBsuiLHgUo7AykIalG6vgwlpO1YgY",
+	"QTzVWADUiWo0v6qyL34AldQWcjLBbYCHlsq3UDGnqJSyauuK1V8C2cVuMnPRnikGrWOlWubjc7CPXb8K",
+	"N50xWTPED1WsRBguCs24ezDYub2mC9QHSPVE4NJKC9DZUGOyb24yxSTtVHc5RtCOgZBlsXQvj8OyeeB3",
+	"puGhTgsqLIyGVKTCygdRJTQuWGPfEi9CWgw1LHJ6gU3pim3Ft+gOAYM4ohG0J17SPNukkUPB0kQWkvOr",
+	"eDkYXwkjxHmpEZ3EcwUHRBge3KHmErIetinNydJT4lCK9joAxE7Pr3fJSjPk/biMyHVI5oFRkQFFcwGh",
+	"Qmmg6KFuMGYNlqAyP/kEpFuj1SefsC9tih7HZEoOezdvlI8yrGrvcTjJ+5gTTy5AXcxSZb0kDW87M06m",
+	"CsVJzC9mSh++fCKcbdAVCnF57ZL5dTlzUBRKs+FA/OHbeKjbwUqgvmkKtpCg0qtyNWgy57mKghjKkNoC",
+	"lvrQQXtEYiozsH/AkXR6BrqZL8wbFWBd7vd3D0hNSpMAMtPMgR7dMmGP9Pbdnoh3zpXMivM/gfi5A1S1",
+	"oH9OVZGnY8uWhx0zU1rO0t5CTrN4qNGUpA130o7dquEqdNwV+AhdrO6+Q4cr7qJGw86D/Xv3xSw3p5ma",
+	"gr40I09CavQOP/3tX1uj44jiSuRQxy/pufP4pZqmmoIfJRIx9mBjNiuRGXUyUYgpSpoJysqSFE4wZNBT",
+	"OEgwok8f9HfpN4SVQfLnSpFk9YBsBxTrdvwNt7O3U3Gcx6IdD1vDlt9SFFHw+84B9X508rUYqyzD87uT",
+	"pVrZHRYr8H8U/zWGPCd+BHuiY2xwt3sqrUrE7HxhsaQstMCJhkKcK5koXGZ8vNtxORrc0f0dj/vEwykl",
+	"RBgPde2ANZfFHdccSUOkbEAqoSzOB2lCCldMgxg8SdR0Zgqlx4vu7xUlBlJQDuvm09Qy4BLKhuHSY0Nk",
+	"P02ti5fJSZdjjKl4h0ntmTsewi50Ia8icZmjz34xY5AcVgYC7BaZKxDyDoh4HJQsuIqzrMutnYKyliv5",
+	"BtMf55kPP3Iic9vVjisq8A5OvBxqOHMRgcPSsaU3QOjNFUqbablG4o1aoP1hf28PePm9fp+s0cCwh3rY",
+	"8ohaSOjDlr93YlZqRmnCZeooCPYMBlKY0DqQGSDh5yxBpc6UVNqYsKHAHEhM31nIyWDhpM74r7psDuk+",
+	"geQVKcLlM5pNmS6oHI0NyLLfIK4Ps4ljWXDAteXrhS8DNI+ezsdvFLJgHpstqwICniqME13BQhbiXh9x",
+	"LtDoeVDiBmPsBhkMHferSZ1nqrDiHmcGA1Bzp+dmzYAYhQmWhy0JAaeNhJ2Px8qimoP7E7G2TcXCHbzs",
+	"d3NTSHct8mFlM4ur0f7o1WOR5HJSDDX+TzdVxaQLLh05S7u5LBQuVpe+tt3+p6JN4VFlOAZL54gbMtQx",
+	"LPFTMgwwx+Mw6eJcWQKJdjgrsG3WG4Yu00RlCxQ3OoOwoS431ya0HdijOxbtDZAQXL52rKYy1RSijKxw",
+	"qHkRLXqpI1JCgVbGZq4LldS/twq6oT21Yq6LNOOQHaKM1LKNHdwxbAoov3+J/iTkyoQaDE/xn+rg8nN6",
+	"xm07ha431C8l+6jwdfwXkwEeT64rHB+rIl90DycFJOVh+i+Gq5WoeXaonYpJK817RofUUYx/2xnZSGKg",
+	"WdL3jPQiHeurHLwOciqynKKoBAYiZ3LpiUO/5FUc0zQQHSibGtcfVxDPgzaaxCNaBjy5M5XDpQ3jHohT",
+	"dZ7qRGjBYQBwXoly0H1BAN+aT1VauANPlkHg+WdKc2DQ2CTKnTiy+gul59OS1dQiZDiTT3OdMeyJ7MMS",
+	"PJI6sB2KtpOWDRwg6OlMkfjPYk2Xx2HyDjBe/9dQV43N2E5asLlUTOWM0wmzuZd8WehLA7cHjMjjOvqo",
+	"DRtGHf6Hvxexi+uB+3R356p86p5AnMNP/+Hvhxof7tHTxXIL/5Z/KZ+6J3/cC57toSua4yf893vxgY+f",
+	"2p9l/MtjM89fYm7nvfJZeqFePo0PSuso4aTFu909y+9ApvjuHho3d7t3K0/v4tO96rt79O5xd9/GQ+0f",
+	"H+/j4/3ubvjy/i413L8K2+1fxQfE520NwZvf0fabRsc8t0GPjuFJtKS80/IjDp6lArzxgQ/jmCnWc+N/",
+	"/s/c2rN5VqSzDCqtxv/8Iz98mF6kiYpZ87hMcyYhFI7Jn4mnl44BlSbGs/MYQZ6oHsfcqorHAE6HdWZP",
+	"C7tTwOvQ8Utv+qAnQ82zdC/QX48ulC6OoGF4hkA0cFLjzmDJBXGO/nwgeAfU5HwzpXA0llqoKYWKku6B",
+	"OliFQ9jLtAAp/ULhWVNTuLQrbgV8TSYJHzJsAtGcpbdgn+ZSj8+9txkzbjJzNsRklFyOC04Vwht2t7fX",
+	"61NZ/YD50G3XQfXglUMGFbFkuJZ8AsIN/VFKQbTtnYGIMSs5FhgPIFgQ56q9gYQIM0F+5WIOY+yGOVkZ",
+	"BCEoBgIaoRZjiIrOJ6PcJpDzBWPBy0glTC6RKCWiTmXvgkaogRgKLogAMA9a54TbmHTPiCMl4NvKEnDu",
+	"rePIbiEYzcZiqClLzBiVpt1aAIkPhFaXjlVCB1OFrsGD2iUgrFIW30X+72AtYWfiKg6oW/AKmK2zEjeB",
+	"2cJQQjxb2YRmW51E4+jIG1kdIo3wCwgcs75izqKLAhkalRJB2r/0TmtAYIP3kTDwdcGBCY5iGP/EVS8N",
+	"iy7F1KirSu3TbuLv5lIX4b5jHyOKd3NhEBCKmmXmO1bv6RU7Py34d3Dr8GoRVFzsBu0XHQc8gvlVGmFI",
+	"lhQVd3hOXlcOqCMnbQUX0PmrwlUnWqGoRpl5SqF1pzVzkoxbB3R0+9onGMcCd7kWT46+FiYXR0dfU/xA",
+	"uL4roYqFNpdslE+LKoUBmafoJYEecbUphobIXeTyMhDo3DCBt7mDxatQRlis1yK9xcrNrs3x0Oxw6LDv",
+	"J59rlwAzQ+hCAGMPLPEhUVHs5UymcP6grXv9PsXToA4Or4CVQmbpGzWAlkp453/+z+Iz57JlJ6STLtvs",
+	"Piq3UTokTbRIdnqOv0LjmVzAyuA5hLF77lluPFlAGtCqoZfmosCUpeHgHMzlHRjlXxNFRjg7ZGuVDQWw",
+	"8oD6iNe8fHHCzti5tjtjewE6BEVaHM/1kb1w9yLMBcYva04mCj9xvL4dF+qqoHZAE43qwTLWlybu9Gq9",
+	"x6VjnmJUg7akZWrHUW+jsZaMvK7UkRGnSYdrUs2aFS70wW6ovlLY47AVGgJanQN3e9R1KhGoVFOcdqNc",
+	"hALRIJR+SMzpIVRmTO5lF2mwJCOJmEDum76pSE+0VqUA1cMhoPlvWa4iddldgjgFY8lKggcHdzJC7sPm",
+	"Wo4gG4hYnpoLNZJ2MZ0VhsRXKI5zGT5ytG3mhU0TNaJCDrxHjoWPgBbOVQZMU+XORjMvnPfXBYwgJX6T",
+	"5qoLtnJZpKeZWroPUVHEa5CsbXxFQTtmwiKsFW0vFCxrfZ2AckPN71w2aH1gr0PDJom7qHKdywRVVbzz",
+	"TCFmuaLYcPxEtH9n3FBdtwwUFwbHOKkDGhkbbQupC2rAWTwfo5TjBXqcCQj6LswT2Gj8CAyVccnofPup",
+	"Fc7FcLe32+t7Ln631+/d7fTEc7BhINgdLOSA7k2IGED3mtcPYvr1D68iMcSUvGHrW7hpy1d9FV0KcQxJ",
+	"00VyjNAyhVI+CEBP9GOTj1Uvk7YYhQ7HGCNCYqPVi8lA/OF7CAd/G4nvaQyu/7ff+jXA2+OEja3AaqhA",
+	"ALSSIb+2bF3QTlWiqnBwz9DZuNvrw8pORewmNMCwi5jOB1C1iLGOlbvyJUZLQVoBfAFqvjVTuPzjeupx",
+	"jBZewQb9OcXOqmwi2kuvDkQfPPvSVqa019/rd3f3gDSJt/fEc8Pahbv/QdalG4Qsrt4fERhhfRJaYapk",
+	"eOCR3pBr45zBTXFOl0usrpApxRyJhgGlC/J+1gQoDAQYyyxzgUrOdwb6yu8evYKm/e32fZq8jemNJcuo",
+	"iwcKtOAD77tk7unsKzR41L0PvIv1Gi8zpXmJJvxDHNBy53KVDxaaWfJIcyOVSdH+1KKtdr6nf4xgMQYs",
+	"2OAwEUSaBgiEdlkTEAIn68735R9vd4KQg51TWYzP44GwsEYy8/IUSTKhGBWRMctFl8OWVCMRsHtSc7tl",
+	"DKYtDYCB2B5Ge0IhjJTKaPNN4dZ8hAZreAEP6YXMwn+PaLfhEV+DhAruwFKgKQ8UQ9l7iOwY018gnDdI",
+	"9yzUO+mVpSjQibyfeuLcLu0NJGSO7yTJlqKvi8t0rDqkcztJDS8PCulD2bLtHGP7O9yDCyy3tRtilptp",
+	"alVSqX0rxazuKkwU3DYJzIY4cMVZ6Ds5cGEFd2zND+DGm+YkIyJZezERaiO6nCsagauSLAuRpFZS9pFe",
+	"Tk1mRWzqEG60s1kSvAzdilNjXUk8kq1eL4HEs6RVoryu211xWJIHnNjAFkL0GgfoeSBi10BtCZAfh46d",
+	"AxKfyiEu0IFWRr6IXNQMNUuiLzSRqDHiGCFVdQ5cZjcecpdBICeEJSkL0a7IgMuiHgceYivLCOrtJcmT",
+	"rlMvdq+eOOEYxgPApHdYpJF4E4nXjD8K7TRAkDLrgAUK4F7PZa4i7yss9425LmGLo9IRjBdZUS+AsI5L",
+	"1HopLEEUImw1NIPQ1azXthkUeLfj7mscFG0fuRMef/nkmG55OuMMeF+uDWC5spkqtWZvt/+g3w2Wq4wn",
+	"WTEtui7xYM5yVTDaHrz35dP74mKPOudo2NcNjWAmthDPXz0SVp1R5JujDCVefPFXJLRiSAPhLjnwfcnJ",
+	"ylczKtUCKeMGk6V8wChd4sxBWSBZoGdQJUJyek8OTeTK4izbCeVRQ1KEjULnAoZxpXj1xcAP9Z0CblC4",
+	"QLJMOGswHu0h1f+E2IS21OxTpzw5xBM6kxduNCT1zGRusYILToBKX4q2Yx4BF3WGDXgPWM/Rydfkvkef",
+	"MrBdlGIw2FQXTqpCX4sLjCaBxQecS+04dhDUwKlZ2Cgc5SmaCKZT6WItQIwE0GM5twrtwc0WYBS/Swuf",
+	"Ns4knaiZwhhWozncZ6GKzqBJWiC+hBGnIoixxcD4mDxqlz6OGgVJo8tkIfgswWurJ+px4Mw/bBB7jMR2",
+	"CyGteB8hsaHiVzEgkQLm0pe2zqdyRjGnjGH0MBmidKpZyfOZKqeLco0oy8WlAnkxsRb4uCZO0CU8hV/c",
+	"oRwUcP2R/UPq0oLQCfouxSOWqaF7kSZ0yaF4NTM2LYNGgjBnlw4k2shJvCirNMppHk3P5RLxIkBKZi9L",
+	"x0qzneBwBgJPd6/Xj1xgPIhONuUUwKdPjh49P3lEOZ/8IeR0UlnfVvl5K2rN84zzP+1gZ+fy8rIn8eee",
+	"yc92+Fu7wy3iN5BAnBaZqqaFUjUhS+miuz1+kf2lrUELlViqC3SOGbQukAz+zVVpapnrTNZ7UCMS4uvp",
+	"AJEvmVxfKRRWfo5mVxdcBvnqnsqfJK1B63eq+JK7qkE07fUR/nRsdMHlRcOgsr/mTGPiiddlN1MXlENb",
+	"mwcOE1bjXr+/qhk/rp0nbKbEu6KSftwa/OFbhL+ZSgCRbj0FoVUhAGkhzxADws/ctr6FT11Y3spFfplj",
+	"5peaW6r5r64c9QrKoKyv7wG9okRaUIQMlYrRqrg0+Rs2xzplvcjnlvHHl/bkGY/s2j1B2+Usk2ltN+op",
+	"3ksLzz18iKUPlm3q57FyE8JgyJU7AXKOs/h4HSKwAYCQcDpPQQtGhIENyJ6b247s3SC3WOhw6Hd7u374",
+	"kfi3h8+efoj1fxVqWuuWniJUN+QxSlfYr79YfeknXBIMBp7nOU7wXv/uUJe4XPVdIZdtzAFkkrJQ44Cd",
+	"+b5SzIvHywpTTYWD9BxwCLjMmRQSh2xCiZ9ukDiSdiXEqFNGP5UtW1RMDbrXyQgXOOGHWpsiHSvLUDcQ",
+	"SIB6OZCHjYPobRiUD+OJRDoRUi8ihvIhZTSTZyvO/jHtygdkx8fo2FHWNtErdi8KQ+t5Y/qEr+5e/9UJ",
+	"Le1rLS9kihbKtaRdjnwNWV/s7qAtayVhf/IJQksMPvlkKSQFzNAUDY8i7yG0A2K1jUATV7agLLtIyIK0",
+	"e+9yBQ8h6H2UaxALqnMLQbAYyeRQAZI0GWCDqHJScmpQ+h4lK07PJkKmVCUdvGMute1RKY88GQEDisvi",
+	"HnkCcavcO1vC4OlQt8nyjhOO/bFNk04IEgDyqY9xxWx3A6YUrfImaj3B9BdcpLAoNGzL9y24klpoc2lF",
+	"TrqiGbSiDQmVUVHeRs2tBStQaTKAP/l0vwHuZG1rabKqrb1+f+PGkCrqDTWi0Ow2oNB8+wEPP+7WU7Py",
+	"rgLqw1O/v8mp/0ImDhUHP9m9/pPXWnJmnkroow34xGOTn6ZJohAjZ3/vwfVfvDLmmdQLHp39hfiY51x0",
+	"VPBghYb200V48sH9gFQYsDfK1QLsnaVMF1/P1PEvRHScprpkhPTzRpywiqtzHWekqL0aUzR54vAgKtog",
+	"Jslz6gibh7Q4XQw1gEUEP/bEY05p5kpgpCsfPn94IGKQ7FBYSDW7l4jrFSYeau9yijDgHG0OFX1UQMKu",
+	"5YrgZe7S2MOpiLZVChIDKOu8JXxkl18wMuUGwlVngEikoiGxe6irqdbSlongjVncB87n5XOZh7qaME2l",
+	"i3HOlabBU9cr85UR+QK7QNFrqLmDMsl4iY/DlGlDN2PjpV9mY1YeggGvYppsz77VNsnUcatN+grBmzVZ",
+	"qfO8qs2y2PBmjfp6y9Bg9Uw/knmWKltUD0BUHhss4tQwBjhglQFsAna93P9TWTT0rq6u6b0wt9D3S4fT",
+	"sKqX5XuZIzdbg3v9ACpu79o7OmreoPL07JQQAa0PeqMjgcERbrrSAR4H7apmwnmpHy/3W7/cj6jESWrB",
+	"xhjc3Xz7rrq7wxvXVbm47irH8IIPcJ9jvg1lr00gFOMJeV48PhuVLfY3l9JnKQMvJQS0S09GbOfkeNXU",
+	"Mp5DrlxLK7ReXMLl2+eaI0YRNw9/hvO1SlzGVf21H6n+/vVfPDfFYyyY8q/0DB7SVpSuWkQ55OQKDNOl",
+	"qokf/nTe2PqwlENTO6MucRQ0BBepwmCnJcSGU+wRY8FkiRfPOUMm1D5SGwLArTuZK3T8X8PxvE6hxWWy",
+	"H4/or+CIBqRXZowEJ5IP16a6bu2ErjmRJQgMTGNm7HtZBamQk+W0FXyXMqcLj8oeBFa5el8eHd/k6RnW",
+	"fwnyGfgmdfjHEQQFEBwF+JJAn3bNjMwEwAbgG9+Qv2ZdGScMFSzAw59qJ5f0xDG3XhsGLk5CMP0L/xdo",
+	"lBiO5YBFOTSq7YIqsa2hxroNGPJgtPLm8ALCsxlcAevZoDbAzjM0E3SYH/nlYTSCeEa2gJEPUaQOOfLR",
+	"TIJQL1YYh5oCqXyIoY/2KyN13GyDytwyV8JFb2NaqZ3PVG4VTh5NYW5o4MW19WYqIE28xgPwU3CNxcrv",
+	"lHCAvZnMoeC4cbCixDEx4Pon14RE6wJlfyk2XdieeMGQM87RwoyfTtS5TDVmC57y+CHHZb//IKKEUibt",
+	"UWpH/DXDPhxjtml7f2+P455OOeGYJbwSEMRfsNDegQfjHWoa/pOjL8Wz3T7U4diDiqxFvY4z4OpyBTi4",
+	"ljgiBBEdRkxV8YDGQBSHqJS2jA7zJCY4151Lh/DHFqE4YqZjO/LwnSOtLgEepxCZktYZx/EbRr/kcyAz",
+	"eLygdiBd0P3iU77igXcA7AESeb3seFmmW5TNwinIMtGuTcINATPGrWDgc9dUh0eRairlYkcA9xBOo4L+",
+	"HLwY0/IROC/vEoSbRG6LOi73k0dAPYH5bITI6iOlEzvSSiUjCmyKBzwZGG6FDcACwIcuvBBgdTlOBIZ3",
+	"np6dw9+0n1rm6OIoMMFLnymYC34NHR5wJqxwOG40Fh5BhPFyWFpalfF20P3l+YLCqSgeHuElY/6qDOjB",
+	"Re40STrE1B+5i2JrWSfAZ/m9gsKIW0pHeEV/YZLFBoIRB73RXZbqggbIRblaT+/i3UifqdZgjzogcPiW",
+	"D3gVe7BsT+9S+humdblsDgB34fsJeEoux3AXWTUr5lMUpDaTzPxienmqijVf5HP1dkky3P15FLewDCdn",
+	"T0F7T814RdW2l7I4dwfdfRyJuCZqYKHm6hSjdeEC/4NJpf0NpNIjoydZSsUV9nc3GNNLuciMTF4Z81Tm",
+	"Z4q+u7fJAtj5jKLmn6kkla8WM/p4b2+TjzmaCgTZR7oAb/S/Urn7Ed1AYRkmzdWCIiGdHOtoOpDHvxu/",
+	"n9+JhO9ZZoreTJ9tpBHfwGqF4N+ZwVDYGDuzF2cxz+zl89+JdCrP1Drt9mVmipfPf/ch9Vscww6vQoOZ",
+	"+zTVkmyHmwQU4Sw/arS/+MkCwglU2UgQFX1wC5Oj8g9wpE7KJHcvufqyPFOZv0FQKS4jgmmnNHPOkJmk",
+	"CaVLnmJeE4Wy58qmyVxCkrxWmcBMW1Kx8Fj4TAVJcZYYQTvUlNPv2vf1TwL8T2idPWfXHe+Tr3+G420v",
+	"zn57daMIwY8H+ld6oE++/nkOdJnduJmFaq2h+MlSIR+YU4hk4UoDBBWEeMKonVKkoiwVWsIbpdNcnnLh",
+	"shpBg4vL53GpcKJC6NRTyMyugyX2RJkpxRhM9ZpAUi9c4RzOUadSL0WEKUIMTgsNgpMdFoOZwoGzs+D2",
+	"DzXnKIGuSazJ5WBSthHmwlByeAbsiBP/KyUZVTLUpLSanBiZkORa6InQBUHAcFiPsay0xP0gMOVQ7/cf",
+	"rFZEg0V5T751Q8Wy3M3WoN97cC9qMdHgCFIY6Tfdfn9/rxqp+od+r793L4L/7t//Fj30nCaLBdfK7+4u",
+	"f7d79+63b7/dWL1cyrDbTL+8Pc9DOADqYpUHng2TMw/yHlEUM1c/yROV91ofVcGPquAHj1QIc5gxytgV",
+	"dwtDDgPes+FVt+Zqq6Ds34b75RgUVxu4PBmBxHkFOIzBC60EI+5jGyA2r/QHEXruaqcNA4uwrEvV0Nms",
+	"CRZ1rQli5SzVnBYM+4L1sMlASgix3mwEJDiAGllUzSKDPGiu9UKJ40qPlUtvZZsotF0WBmo/OXmx8+TR",
+	"kdi939+7N9Tv/uF+b3e3t0f+FJHk6aTg5GHKwLQusJB9FK4wXYDcj2CkJIQn5WqWSybaJYBOzO8BbvgJ",
+	"vIGG1XOCelq6zI795qtfcYTHcYVEV0V64MamFkyGHwX1X5qRBYTlhHWiXBIEiQPIS88Fbjmi2rM2kye9",
+	"WTL5ANEerzzePXUTqCVs2nr4mAuHoNKia0WgBk7uZmufs1iX+nPksxGjwDaISc7IFJz+HzGEJ7RT1kn2",
+	"LLOsrX5H2LEh6ITv5lRj00GaEkfCb2whi9QW6ThiRGho15o51oXBJ2SghJxJdDGjvL2qKk7klRls3DtV",
+	"cc5YetPJ/S41zFeHEW0tpyriPG1KznYuq0ye3rHiT0arCNZRAp9nu0eljJI1k+ISU8R1UufVkcNBKBCS",
+	"7OTLwy7U8WU1CmwprmQg12Dx7nsPjlA66XWRr43QOUYiefnw8c/FYpnq39uWyYfoI0/9xXnqq0oRorAM",
+	"8ftmpWwjLeIntyAmPjMXaFIM7oZ6bIkojIgR8OZCMQPOFTlCY2KBNHHrsIiYhZIz1fNVLIeU6jpz6IlD",
+	"bBp5mBsHlU9g+wSmvkK4SMzOblm6rCEUw1sSjFaE/hNYQRB2QWRGn6l8eWaY7PGgLNgEDyYp1kBqu5pF",
+	"2DyVNi/LweYG7Dklj8xVMc91uZCFoZgdddmBiCL6MQg/RHgvwINADm35KkstF2cjUD6u3+CKo7ppSi0w",
+	"bzE3Oh2XY4CQF1hBvs4ItN//CuYbhclHcAcSi3dvuqxln8GLNZqoga4j3C5lYnbd5CFXooIRi++HdXxJ",
+	"dM6UGLZcFid/O2wNhJ2Pz10NKLwZmMBghI68hho3AStHUwLYHRteTB4PLTwb5ZQ7zbI2rObNxOxfKHrB",
+	"HanWoMWr1KqEKpDbgG7zSrFZlTjYXBQsqgXEIcRoizAFWrdfyIa0MkaBRqWSj3ahj3ahnyE0l05fyaLe",
+	"Pzp3zSVfMrIPFiUf8FJ3y2mqxlMY0ymDGKdSpxNlC64SiuIPo91GQ43p8KAdVNUCfIS6gWDV4IA0lnOF",
+	"hf5c2US6HIaaoj/POdWf9QC6xbEAOb7WE18Av1O2UhmRb28URpZvZ4ZVDOoGlr8YVy2QTV0cV4fpoeV9",
+	"3a7iCMT+dcbj41ZYleJQy6HmHcDP8Ze4szax9KTc8V+lBciPb1Ue3avK4n7UVn4FGfUBqTclE9yOihK9",
+	"tx5y2CzUDkLYD4BYtVBOLiWtYiatRfw/lGpEWRkmkIlj15/TUcrarKEseeA0HAm1JmVmjRNIbcntQwke",
+	"6mKR+OnFfEf8Khc+fN1bRYBJIWay6x2a/U6yOK1yRrl0sv7SL7pkbMRypnNbCC5qGKwRaU6Etg97ohJv",
+	"wuasdxLMS4ZH0eyEY9LlVvycDrmuoVtqiCzODIqSJh/qJMVbPRFyjDHDXOTzoCxACnobUh985arOwKu4",
+	"69+QkjI/heWt8FVWM4lr0oRpIX11kvQ0zdICYP8rLJ3C3RuYuqjzdIfwa4uhhs8t52c0sPJSO/EsXYZ7",
+	"5Bo4EFqleLk59MfwliLPOyxq0DofyaEu1dXCd4f62jlijfM3jDMNg+CC6I3ucTj2//p1HDzq8KTnTk0r",
+	"ajEd+BdlhnMk+mwNWlwOpntucqu6p7IoVL7o3g9VJhyx4wPJQVgIaZyniPEIyvEW2pFns79QELfv/9pb",
+	"+aOm9FFT+nnEjveXNtYoRxWs1g8Q4En6UdhLmVLcEA+GWD5F3MSKQVb+ujLaX6VsHw5xnXhfWfiPEv4v",
+	"f9S+bnT4NUv7a1IVNozK3ETSDypgrj1n4klZxgKF1aFu9l46+D+saEElpkFwDTvqHIivDuGLyQS094V3",
+	"B2sszWfnjLh1DqJkuzYoTu5EkMxKhiJYU8tQD5YbsdIf1MMry3lFQpuhdjF8nWqIS8qlsOJq1faBx+cc",
+	"6t1+/92PE6DCHW2m6MqEJn7zUOAvbfxJ/PR3fy/45457DzFIQPpRhFM+1D/85uEP4qf/+L/WUh5LGacX",
+	"LvKoMJnK4THWeYxIgRhqF5n67h/3+uI3Lq1WvD4Rj14eipNvup/tfyqeYevis36//zD0hFX38WA5u5WG",
+	"hUU4czTmuCRkNJvI8ThXSUrWJnzssmEdRsNhWVQRl1YbkRvv3ncOINA9yLVy2JhuXE009lJ6pXiMzzse",
+	"alkA8ZLXGZG+6/nHlcZNzhlDgWcNUY4vQRk7qKUts0JguTrXUrIz3TlQXTAIy2pKva6wZxdRRUNIC/pA",
+	"2aEmSHbS2UC/pMxgmjGY/kibDRuLhhpekg7rE/fFpbeSNsNViWSucE5FLrWlTGAXkRZCwz9gR5HwfiJo",
+	"0Zf1J6cc51uyisTndqRNMXK/Yc0knmGZmo4+Iy2Wl6psJEzuLpuoRSXzu4AwN0khCxw8XFgpq7LZQbCY",
+	"I6MglR/6rJw53NVRcGCAT+7IIl6Tcxuy+X8tSl0AbtYatPb6e592+3e7/b1Xu/1BH/7fv4ObJuSKGP78",
+	"JtWkyOki1XPQ9SKftnt09HV3iuijtbDo/f6DzYOiw8X8hTS2cAi0w8kmIpdHrjHzAjjiR3Xuozr3s8QR",
+	"op21ObpMtJ8cfb1zdPR1Z0NR04tt16f/rKx0Rt/tMAv/QFmzQSAJnnTCmsEaQdX8Ol/ptuAiICw/DbU2",
+	"l52BkFPDN50LefA3fEE5MniB4Le+qD/Pbaix2tUGlxsJnvCyux0puI7wZ0sTY8W8iA9RgiTGEoCByUuZ",
+	"Ft67hnEiKKCx+GZViERDExuleoSlSGKQ0jRaustQj3IS1tnqTZaoXBiteuIbF4hSaR+gRegWhqLg52ae",
+	"Uzm4UNJLLbfDZXxk4XYCJHONL/hadmK/v+8K+2CET64wtJtqyLjiSeuiCLl65fbXsCea1vXorqvhEbaB",
+	"Zl2+TaaGolqPHx+Ju3fvPjjAOCTcXHlqlS5WoYLKYnvs0Q+OOOi2Yh3wYLn1H80Vv4rwyequwFGVTJa3",
+	"aqu47gq53XTSQxsU6FyRtRpHpMiFxsNyHSbgUmu4XGJXwXHpeoGji6Wsh9rX9NrwxgSlxxrmleLpk2cn",
+	"oJwquj4KALNxw0tsY0Lqc+NecONHd9T+UPuYd3K4rNZpSn74PomcIVd9L22FWe+gpdMil8iElxSX3VJx",
+	"ac70vNeQsfnZNgmbTYvyMXXzo6byUVPZ5Hr5ai5B/lms4bO3msO5eSXmW7hitisATfXi69WfEYc6qP3M",
+	"IIKYOYNWbfciRsd/R8uZNnm9hjq8uZq0IspRataM4OrqRBSyV5y7IlQcOQPjK2eCbAUH2MBV3NU01MHd",
+	"RBkz9FpquW2VcKaYySnIogCkwYEoKz0PdWn+a7zbnMkSJoYDAtOeK7Bsd4bzfv/uWOP/qKC4M6tlvMiV",
+	"Ze2JQ4ZI3I36UC7T5WkRDuJ2d+cXSGe/8P1JfTZdpttemPVW0qVWVqAmNDTZ39+DNr9dd6W/1xWNa/+L",
+	"39M8ivWXde1kuRO66oR9vLc/3ts/3729dF8F906aO/PZB7nLueDvZrbEio97e8tiRvVfQtjrMCkLI0q0",
+	"nKpVESXPeKwfkKtQF+tiQXjBPtZKuf1Mkywr60/XaCXM0ud3NjO132KIR2j3QC830KoYM+S7p+rdnnhp",
+	"bEEVzQiiGv6NL3Nt+sVQl5geJThB/Xy4psmcfRX80t7r7wL+s8KKTrn/AeNtF1Hgpx5z2GeZrFoDMBlq",
+	"RjCBsZVDd1XIi+Vze8e6zHXiU0PtBspwH9i9yw4Fj/IeFsB8dZ4rS7JupiaFwPTVyVAHYRqxKOQbFdSR",
+	"uWM9jHhYd9VHQthzc4lTyDIEIYFoAbrZGZs+V2Ku0+/mtPYgYDpLO8SAr/E9P3Plwd7P63xrwiUbpEvJ",
+	"cq7TojVoTc92nmI3VcJ9Tu8BS339tZidm8JMFco6k/RCuRTJVItkTmPAwliI5oDFsIC0WlGt1+78ohW1",
+	"PNADlCzfudpchKQl/YXkRd7PBq7+xEHuOD9Xjd4PPF1j3SPyWyP/v03f+OrxEbNhqjX5++FTu6s2Di7/",
+	"ne9hm/9HA6j+KPH+CkHG8PB4HhyVEWOhUGi02uK6bxZomaZ/CbmWPcwUEEZVMsIyLfHqyv6NFw66JSFC",
+	"LGDHcvqhvKWHws7UGOIdAv4XMMUNfKYBXHhDkeO93f37+5/d/XT//i9Y6ng1sy1F/I+O01+eX7zQbjc+",
+	"sPzPzINzNTZhGkt5E5zjFwmfIOiSykWb2kVplMoxJSpThUpWpka/pIF8SPuZyu36rAca9EdF99apGhad",
+	"V3fzPKEba6ouSZZKtrAyhFmGEAE8mWdZBdtAtBGjIIALAB2rA1WiTKY4RqpMQ24zop6EX8Rhfmb0XppA",
+	"/ua5ACCbNRrWS1fy/5fTsGD2I762DjN1JY7LnMvGRMzNci5NpgJcDJW3toAuxkX5heJzeUdW8AOXxNz6",
+	"KPh/FPy3vchniGboaGh7tle5oHe+x8P5doev2s3czDWpnfniWOoALQ3YHlhFDP3TVwlMc8IXIIsSw3/1",
+	"qCGeU2l047Ahh/KCNrkmNviQRr+KDzYI/sSTbir5P8WvP6xk/T8GC/k/gGjNxOdR5m7rSM41oF5sfSKP",
+	"MiVzy0gbGI2AWWAVTA1Vwp80hiq/xq4/HqePx+nnP05Ee+9/mlhf/WDZ/Wi+ZjtbWRa3dBdROqOvm0pJ",
+	"jraQhYqwEi7VzMYrUitRmEJmFDIh2rFV30HgT7W0+Et5pizn0lL6Qgbqz9hoaAmdWVYpMUStyA5bDi41",
+	"mDbZrlMrEjPGCBRwfbmoJZi1NXmMH02USly5YJ/CfKrOUkTjBxw1dE/he9FQx+BVG7kGUitkdgk5ElYV",
+	"oo15Z0JNZ8UCUbMZ+pNDwSyGmekCFCOMV4Z0yanJVezSLAjwDR5xoXFxqXLlSshCau8UHW+9oX6MqwND",
+	"q47IKl8tAJvwXjmjx2rgmpW5Gmo9n55iuBcvH+0JSy5lUqrlfjEOWtK8YE/zoeaEaqm5L5c44weKJsCc",
+	"aAnD5/C11AqwtRRKu66D7qiRsZxTos0AM95xCxBwFcUsjv3CzPYekieaYfl5TyaQFxvTD5z5ShTu01p7",
+	"LqU9Wp2txW+Gv8YdxHNqzCryH/ifwkG42L+yRnVZPBqGDsdlxJDd/uUwmcloZeGkcOz7Jmi77RLXtufe",
+	"jwe1hCDM3U+1h9QKU5yhRRwrnlhf33qlCeoYv3uENLa1kg6n/gipuLVsY4YfhU3/pFZZkBHqvWI+Zidw",
+	"a7Db70elMRlKVv2CZmRaoseqOY0Vw84kcVM6qh9tabfvUaILCxm/mdSADCoQpfTkdtJr+O2d7+kfozR5",
+	"+4GyMd0NzTdzFydKnJciHMi1xKOIoxK/1GdSVm5xjs3AHBVxqEWalGgS1FUl6neoCZyg7GGF94qOwjKf",
+	"aEL1hzfvWOi6HQzdeahxhnil8kMnpnQ8u6hK8b6JtZK8T91LdfHpfitgIg/6/fu7Dx7s3du/v99/8GD3",
+	"F2colHm8uioCvPNR5v91eKccLCGh2xOyPYT5fzjWM984c690ay+XcjU5B5aBGNYOaqa4sji+egolWGNh",
+	"LaNdXslMoeREoVa1Ell3PO+p1Jap46MMhBR7/V1CC7UVy1kgdCLuzdxhfJKUS0a4C5mliTidFw6+h0Y2",
+	"lpoRQjmuzeQEigMSPQc+RZBm4IPILNakySJ01U1ArsSXbIcy/wCgmZwckXOisDEirNtQLeM4ELm8HOpE",
+	"FhIaIZ9fcZ6bSw0J5guAgaLxp3o2L0R7/+qqQ72ERbOG+nieAY9XC8Mw08QpKHhtECw6YaNitCHuFypZ",
+	"ipCW3D4xg0UoHo6GgyXhnxHmFCYOsEUqAxkUTTIGi/a2c0VMTXkKEWdGpLowISgUEUtxaVyEWWJgPsKe",
+	"w5bJoa4gnxy4+zpNKqF6QYQ+rsJf/MVfiMDtM9QnCu6H4FH392qBRTumED+YqyJPFezGRPXE79WCWscj",
+	"59AMhpoAY1FDsaTwqCkOHwq/EQJtIeDqLMTevsAk/EqWzR0MPASzMfrPqIAFQ3gP6HvxlycvnsOCR8Hi",
+	"A6+YybwspqTHxkPsibY1EOhYKGFncqwYBhbInnU6XtEpOpw6B9TRUB+dfF3pCEVqUd7GHqg8l5fi1CRQ",
+	"YqJQYEfrihM5VeKNWkRUMj2YVMRlo3jKcC5n6Lkm2vvkE1eGaKiFP1CffEI1Mop5rst57fV3S06B/eAo",
+	"8KZ3sWsxqNOCXqts77GaZXKB3eZzFUNIHsP34oqWaVDV6bgo2yKc0wDwjCovwoJnKqiSFeRREQOA2PsM",
+	"wh5p3tw1QkXAgAlOyh2qoqQRBISnAia4+lrkOBNC/zK5OFMFAtpCK22a97Eq8kX3cFKoPO6IFEwxIjHE",
+	"GGAeqT2H8UDLOIvDsjOgZWZOwFKgg3vAWfznEH6L0uEbtfBHC0inHRfqqtgZ24u4M9S/U1phSVsxzlKl",
+	"C0uaO74JB97n5MEdgx+JthcJh5oV5eO5PoL2fOSufKMseoVF2RuuTKLGGePGWaLcoQ5J1wp3bx6QJch3",
+	"xjBgFEKMFpSgZTvUdD2eqkScq1xFNQpUk4kaA5Gb3M3UWzMYOI8qBkm9CBL9rFBXM5PjevQEATofkfzX",
+	"BQ/fQJSD8NUnh5qCNanwo2VsN2ekWjquMfF10BLKjqEoZBwgTMWi7RaGOG/s6rbhhhSo7XcOuGpzXBdM",
+	"Y4ZeC7rFa+RUcYiXaO9D6LZTRvDApla8fvW4+xnAQWd0FSAr6RJ7wuJlqRXpmYYD2SHQjf3dz/pD3eap",
+	"A1bhKczZuMBzEQ9b8YF4+hhI9uj46WORpVoJpRMoDf001Qj1Zywf0KEen8tcjguVQ1/xX8SuPjRtDywF",
+	"PLBv0tkMiOY0k/oNtmnDH9iDR4feoMEO+2U7H21YTxyZbD7V1ieooDgDJIFTHsDy/CDG+JL4wZOq+KG0",
+	"P+XmUvzgbjv8Y6h/6Ha7lf8PrcQABBaLH8RCWfGDiF0LMf6B38eC3vQICe5lfiBSH+G34iF+jhd0+TH+",
+	"Wf2UbJ/0dhXH0X/lkBsrP0fip//4fxf9Wgvudig/RpAaT9tOrljzw1D7RUCNEfoveymFidpMXcbk0gfu",
+	"BzGRY6x1SFmsoi/a9AqJprsdbii1o3AW2BalAJN+4ff7jvWDNpOS3aQaEIqgwxt/B7TWFaR50IszlQNF",
+	"QcktltCck5pdZ7m5tFW+B5dNST7IN5gaQk2AmDYyBHdzKVlUG6mSRcdFvuKoaz0E+9amf1u67Mtuaj0E",
+	"OwcVxcwlS0Ap1eala4HnDC3hr3glUlVWPI9hv2l5j/j6ingaUXSjF/H76k4zN0BZLvzFxhFlbdMODLBY",
+	"A9zWcAcKDxTp99PJ16YEjCDwfcxNby/9DI0Qin96xcXpw+JjvFI5+lVkwcIO8MsnRThVXBrdMByfAx7q",
+	"ET5N2wZV9qGJJWJlUxINhgo2LJiJtsuaaG6Md1BQineQB9eyxsPVxgIMTmz2GfUgeODqhtTnYMW0L1GA",
+	"m/eclcS5VSLugRiABfqmMhMzgzKt1MJdjniTa7zq4t3ePdW9G3cI2RbW3swtKvRWwRVZmNweiPi5fA63",
+	"8hM9icvqP+kbFYaGoEEAHTOiJOecyiNIdJ/BFFl8G6ss4y10chrc1AtRGJw8rp6Ai8Ffz8ie6HPtCnUD",
+	"4fhsnsTRP91XUkxTQl71B4B+j0B3EEhErNyWMjNp20AqfG8z0pi7GDl8H3YU2uAQGnxpv//gU1IwQoql",
+	"shu4CSpfQQv0Fw2OHsV0tpvfjzv+wOMauyqxlmiI1rEN0MDgKyh1VziznpDduYOO3Mn0n+CPNnjg7CKu",
+	"XCvQJkpGlNsmCdsA2trr9wHgQKAdANmwRzjoihPS5NEMwN4qxTYZ3yLKykBJwCK6dCdRAs4B6bBCZHKB",
+	"+sWpIReQq3p3ugjrG96hI5QoUDXzIEEQmjjNEQ4Dnb5o/uX6kkL6Ne/1erHbOPIAUhDlYKjjOB7qv2CJ",
+	"mDoO7m6Xeaby7q5os4C2LIh1hhroO3K2CDLTVKUKxyIiz9Ejdz8MtdvLiFPVoqe7Ub93LwJkhf5eFK19",
+	"o//gs+Y39qLdXh/e2Ovfa37jbrRHb+zv7uIbRD7u9wg/vtePEKNhb8ULu3fv0gt3oz1e0BUxs8fzWwHC",
+	"rRoNgTKQ0rwygRc+AyLzvYCJ2Sv8dT5E/zYyUNaPJiCtUs5bNa7y5Q8+No/jiMZKWYJdlqCDq0YZIgZv",
+	"DTa4Zohe/4PRGbh9ang1qwbkdMiNF+2F++Dth4FO7n9WIpAFezpohdylFTk6rOWr+ukw0qQtMEo7xFRp",
+	"Qm4poVX2lqFV9pBv7O3fb4Bsoc9XwLTcXW5r9+5dBGnxovfKIdVgo4F7eZDop7sNLff3mL2tHGatyd2g",
+	"waZp92ne/d1NG9wLGmyYO3BN+J/+/U0b3A8a3F9u8LPdB9DgZ3t7mzb4WdDgMojO7qf7sIa7n969vw2g",
+	"3fE8iOGPWs4cVCH41sdL8/YuzVq0SJ0jog7gLIEoK2G6e6qfKn1WnIee3rAm/c+XegG20vWI6KE6FNSQ",
+	"5vybtsm9eypnY/lQL7lIIgpC449YRnQ2fGdH5pCgILe8yRS/vNAx2uZdbe3UOsWZe3Nrx7pniV2BndYs",
+	"s2Cf3iQd/dSYTEmNp2yzDHiuRsEp8GjABsjSj9nvH5NgPnC8AGCrCOkP8iQtgsMcBgzM9YbZrQ2xAe6a",
+	"ea/4gFeshIIIigCJFYdPzNl+pROG44XNpQ4AdoeaXCrizHuT2N0RhPIKqzQD05A70LISCt56iA1IUing",
+	"8EWBZ6dTOjPBsyKqjpXAW7TsS+oJNzdSnCNfisXSP9OS1fleCEtxqCXWOzFWNa3J5To3ENS+AUfj3FKF",
+	"fyqAY+aF8g5BLsJpuE60qvoRHStdAY91FDjcbl9B3FYN/FAw7jdX/j7EiG5N5dsgaG0rFfBXou19FHp/",
+	"YaGXQxHYQrjMsj6KwB9F4I8i8EcR+BcSgckl8QEl4e83Dst/TwAomI5LzZIuFG2AU3KeMi7S7+NB2A2L",
+	"AYA+aYGeVTK4cjVWKZYtqjK+VWH4N/APHM/1hy60C8NazdM/xrL/CsBX3Zkk4r3RGdw+kJ2KxXzonFf6",
+	"JojA9RVPbVQ9bRz7B7E0XAk1VxCzPJ3NMZRcj1VU6mYu3sj6+PDlAgyE/5ZiUCSV4EziA87LdNHsFB5O",
+	"CT6YlNOQj0iDd0HuEAphqYgBD8Kh6OFMw2GUIfi+fhjEgHKBMJcFiDvv8xN9ZOhxmDo01A9Vnl6Uaryb",
+	"o+NMXx1FYQztPKuUkcNgzHEKLC4Iw6RUJNiFmPOURvQoHgz1bi/o5bIyxJX14AYidpOKD4Z6L2xibOZZ",
+	"IirpAbXX79Z79OVYfVZl7Yv98AuOvYXFmAKnL0y+cKkBEgOGfXgHFqOrtXWvF0LtNWey+sLOlSJ6HAzA",
+	"1EC1j4MoURpX2FtUr+SLn1e6dFFaTZV5c4XzQNKBpFOM/MJIkqX6v07aXEXZKS8JvIcN0MfnKldwha6o",
+	"8yvOU4urWyv3iy1g25BTXKEQBmzCUC+nnWHXVT2ZApVEkqeTosN50ryvuJNuydOCY8OrJZV50bANWi/K",
+	"gYZPD4b605BcKrUGByIOUnSBHO6H7wYlDEXbazlwUiKKEfdVDGmwnQEOgU8VcPwKDIDP88ejja27xG9Q",
+	"FF1hLWa3secIL9A8RXYJO9QU+3yI0dcDEQoIk/M0/60LMi5LS2PUM0a0PP7yybE43gf2mmUc3hh/MdcJ",
+	"RLjCGF6cWpVfYGuxFe0LmTGKM0729dHrZ2JsEkXKdjEPMv4rGY8DUS6B+Ok//D2E0EO2T7DY8HioZ7mC",
+	"6CEt80VUMkb4Yiw1xGhxrDLVSsHhHIg4UXCxxnQCSyrCX5BbPs7NNC43stMT1UWrhIovhtqtkAubRimZ",
+	"N5wNnbm5dBJlGTsmh9rO4Fq050oV4hJ5HfxNyw1bNs8kRnjmGCmPbX4eid9GohuJfxOJQp4ONcZf+5qa",
+	"ki+pjpjlapJe8RJQjrqxRW5m54prk8PNE95REq4/QwtFGRIV4G9cEtpv0fbxlf6SglkD8pxIi6Ulu+qG",
+	"lHae3e9e7P1W5fdpCR2NDfWXT++Li73evd6uiF8cv/7jcX83FlNlLWJSpFo8Or4vMP0GLyUXy8lXavvZ",
+	"yZfRUL/44ph+evHFX+HPNNUBTSwiQpzrtIj4F0HkGAlTEvBQF+lURR73FiSpGUJZUNuOU7D9N+K7XZ3B",
+	"O0JpuvGGWoqxzPMUssopvwYzYZ49ffpSTHKKtzQgTHz56tVLKBOkfdZXcZ4rRUeFUB7meqzyQqa6WIjT",
+	"eXKmCrFQnN8SlOmmuE/AIqB6org5HLy4QgM59tnXP4Mi4vlMVRupo9oyt3EEB4uymClR8p5eaVk1p3Dn",
+	"o4D8XiqPW4d6BMBqkwpI2c2kvf67NYnC9qN29ctrVycVWAJOap/rD5okTLqVj3J634xhaicQPz3Hcu4P",
+	"aB+EEymw9ps4M5jt5aVGW1rFIUgdMWRq5dYKVLHqalSudMFSENSLCCuspaUHpl0qdxAMPeEEu6CwhhcF",
+	"S9wWDuJl86wXLgJcpCKELKgCIsF9vyKrWaxPasbCdhUJPbVLeuWlLJf7gBOySMGCu8Thz3j3oLMUYfg/",
+	"alrKcnJFoyZhfZD5UAe9IhpTKf/VlXSIz3e0wBvudDmC9EkLq7IJagiQ74c2BTfTQO2b62vzm/kSDMrP",
+	"oYOX056hr3No28kbDmaHSePAZ3SINKkkM1cKgGFFELCFg+AFKhFnLPiSdIVHbDqXNmyU1RY3NdIKhrqc",
+	"3WonLS/gbThqt7hSbxiVWYmTXBmh+WBw10Vorg+mbIjZu0thinsPHmwTYseL+AtB5Vau98br12vPHkE0",
+	"L41KLl35Y525j06XD2/bTRJPjYUJIpC+cwXoinM13UYYWeN54Y52vve+97cf2rA7KbMOid1HQo5zYy1M",
+	"lA6gK4NFtz6afYd6ye57IK65/HxXLAiwPrUJkpIgIKUyG3GF/kRsbaUKtcxnoIx5ZepLFzP/ugI+yY/o",
+	"dsJkPqQbqbo2H9WeXzvjWTqlskatH0wBKssX0AEuERY304TWc58vFiiOQicqFziv72SXzbNhEAr6NpwW",
+	"4WsmoHqDgYhD7QeKKOE2QvwEPrswYK6+U46/NMMIOU/SQhS5TDMc1jf8EpcebACRLIvysR8Z7gNnfvaA",
+	"lgqMbmIqE+8iwpGINmRduxF2oopxGoDilAY72sgtGk4zCoBk0QLrhKBThWa6wAo71G1vdfW60JJfhYzc",
+	"HVYO/EpDo4xOC+o1Qo6KJsjMKNDqYDFgiriQKgkBReGnUWHcZDpk44R/B8vJvWfphfKrPdS4cN5VgpfA",
+	"g4FfRto5tzUEkttwE7i9PHGd3Yay0MD934Ptv3795KFj+DfULd6jxgaeLTCtEMZ+aDK4zI0+q135vc3L",
+	"FH7jz9ovVKqw3PMVV1x5JEsC/6hJfNQkPviF7o6GkCXlbQ51ft2dzYap7lQWKk9l9iEjQsYmTwgrnN3q",
+	"3Cdi/IxNsrII9Ql/8cwP8kNyglpnawtTuwF9RBn+IKWpl0hlq5rUH6gM9VjlbDvPlasn7cYHpG8LqEpg",
+	"DeMcsfcPbfH86Rhd5DE6M10Si7qaSZ2oZBT4CGOKVYzHIOLKMzUizKSYQUDiwmQqpxrO7Xf/KGRUmn9z",
+	"NS6kPptnMo+Gei4+F3Lnp7/7L3dRqKqN0OQV5yMhc8xyNZM5Bx4NtdSUJOMnSkjIIGxpEbuXRxN0vDsw",
+	"TJ41/8wwVrZQMwgTyVLAIuNYVC0zcQH4I+Qjnj71inSaD7Wfp+0ciMAVEaEPGJtwHm8seeCDEmaS4Jg5",
+	"kOFzfiDe/Sj+/H8TPIQd7L7jQ6pylckCxEtHfUMd7Al4FE4xQaLs4A5jPaF4TNO4Y4XcacOKv/vx685Q",
+	"t//y6HfPAMtEvPuHe73d3qcH4tE8l8Bzdo6evDo8El+9PnwmDmeznnjU2wXsJa4f7gsYDjXD2w+ERHYp",
+	"UgTcoRg5gI17sKbyW52t/RqqbNdSxBN48PzF3e7JqxdHv+8C8As+rxA/prc3HZbW4B7+kObKelv5/W7/",
+	"0+7d/iuEMmBbOaSytAYtf3hH03JJMgMfPn3xqkuG9l1ELZjDbFQO2jXNQRy7j8UJ/Whr1cGjFpIcweVv",
+	"bl+vbdIvZGhfopWVZh++0t0K3qw8thcD4maRZOd7oI2PqRIfZe0PLXMQzw2CFUXAG25YHHslPd+6pN1o",
+	"2r6W7TcYKJAV//ot0xtyqZI5fbRO/xrg+9/nbG1nkabykVvXxXti7VxZIUUudQKSJDQj2h6ZfHfvM3Ga",
+	"FrZTensgOUAT2Ll1VmY1zlXhTccYLeIyEXW2OPBQcSp3KPTwHEVQRjQfaqzpi4GhmK+QmTMr0mK1lPcK",
+	"hvqLinYBYjOaJ0K0qG89h6k8jlq0cDU35+ZhCTjrX0hWwr6vyaFFAgrKxDBpQKitRuH9Y33fj8LK1rwU",
+	"2ZSQRF0BD2Wut6F4Qm/7vE0qkr8xqzxWF+YN68LY0gH7X0r40f5up1TItboqkf6pHNJQB1iqLu4rx3YT",
+	"apOd+o3lfHG4K7jeh3O9VHjJ/vJq0bIkHyWOX4NID1vx/sckVzqxH6jgGL0B+nANhR3Bbp2tK6zxGWTz",
+	"oZ1hqCF7x9N/LNpcvU/ENjMzhHiGnk6lVSHa/lRJcpZzeMDJQ2ypzCiM3RdxmQpVDpfc5Doxl2WHe30o",
+	"FQp3a24yhw1s00LIQrz7xz1x8lC0L2UOxUHJ5vbuH+/iQwrm7WA0jdEQZHpyri7PZV5A6lReiPaTkxfi",
+	"/mf3+909ns43yhZnmNuNMa273T1bNh6J3e5dGw31XnfPRuK4u28jsd/dpeik3f6VaFOmYQdtbAoWUlLK",
+	"abmwtpoFainvB9EstCl8quKB/1cIkgE2UI4rGOrYdzAQE5lZFYMp9iI1GZldnUHV4mTC+rDQIMQ9X5gM",
+	"Y40xMWeiLh3wc3FpljanOFc5B8z6TQfgYNoPjH3W8yzjpCPqMrXlIvTEIWEqi12EUy5nNdRA2AcCYDf0",
+	"mGpzuvKrOqQIDCrAWqxtLXOEfC/cWqCdGDYRj5XgCz0KRF1EExmriLMzTw3i3ywo0nyovzoSeJEn81xZ",
+	"SvuX43GukrTgegi5Aut3AZeKTsTJi5dc/WOV9/93qsDRrLhHPjzSUVM3zlD6Ifvws90YjQjX6aX/rAEO",
+	"6RGirAD/CCPuI5FqTAe4WIlnBYRxC4i8T2XR0Lu6uqb3wtxC31+aSzGVelE/k1EpBmE+YJWBRlRGqwiY",
+	"9KpRut+bq7XuhcVa9yq1Wvd+5tKKdJ5WxWqrPIVFgaPrZhR5LHmdlKzxo3f19sWih5Bq7SQOri/oDjSl",
+	"M1LyJIoZtcscNqd68wZiFdH6bRlw8HrYmWWm6NmLsw8kfmEvlRRs6jeugUOV10IkKBSIc2F4eVBKGYSy",
+	"A5cMo4hnDt5TukDRQPPdRjLRUAeiEK1zGTXHraHoQadCYUR5plzoIvqJsYZgBnf3cYMwok1Bo153+b3M",
+	"THHy9e8+3oEf78CPd2BwB6ZTeaZ27MXZb6+m2Q3ygpE1fLzGbr8Uech6KccXeXckiIvd8q0EfavxPAer",
+	"IXDFUyVzlR/Oi/PW4A9UUAAN+qvyRuhXV/+UFbUAmXfAKh8YrciKxqEorn6qTJJcWSt2zExpOUt7CznN",
+	"MGt1oorxucMJaqveWU/E50Uxs4OdHZpPL5OnPbbUxxwpMs+z1qC1gyZ/Xqv6uJ8EReHm2lKkdxktVKa2",
+	"tks7gu30yqMKXzUA3D6mUsFhW45HUOpegOEDAoANmqQXGxp9omH1lZjlKknHDifZGRgriKVhe+XrTY1+",
+	"5cPQYSxhBkAwSXyh6eMy1bpaKD/yGYr1UvHFuXJgMROlkl697HrTGL9uTDeOyvzrshgtpw9oyA4Zq6D1",
+	"78YNDR/i7ZuOZcZAGjYIzeIaoBIzfE2WjlMVLit/0NTqyydkkAtfpwcNb7/EGFe/YKaa4qkyNS5yo9Nx",
+	"GSBb2Vz8uqHZp+mF0sr6Atz4z6kq8nTs2g/OZq8O30vU8u3b/30A",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,

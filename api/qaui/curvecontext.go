@@ -2,6 +2,7 @@ package qaui
 
 import (
 	"context"
+	"encoding/json"
 	"math"
 	"net/http"
 	"net/url"
@@ -27,13 +28,32 @@ type curveContext struct {
 	Standards    []standardRow
 	Tolerance    float64 // back-calculation tolerance, % of nominal
 	LowTolerance float64 // at the LLOQ
-	Samples      []lab.Result
+	Samples      []sampleRow
 	Checks       []lab.Verification
 	Exclusion    *lab.Exclusion    // the exclusion that made this revision; nil for a run's own fit
 	SupersededBy *lab.CurveSummary // the revision that replaced this curve; nil while current
 	Excludable   []excludableRow   // readings a reviewer may exclude from the page
 	Previous     *comparison       // the previous curve of the instrument and analyte; nil when none
 	Sequence     *sequenceView     // the run's sequence for this analyte; nil without one
+}
+
+// sampleRow is a sample's result with its uncertainty budget and
+// conformity statement (nil when its method asks for none).
+type sampleRow struct {
+	lab.Result
+	Budget *lab.BudgetRecord
+}
+
+// budgetOf reads a result's stored budget; nil when it has none.
+func budgetOf(r lab.Result) *lab.BudgetRecord {
+	if len(r.Uncertainty) == 0 {
+		return nil
+	}
+	b := new(lab.BudgetRecord)
+	if json.Unmarshal(r.Uncertainty, b) != nil {
+		return nil
+	}
+	return b
 }
 
 // standardRow is one reading of a standard judged by the back-calculation
@@ -96,12 +116,14 @@ func (s *Pages) contextOf(ctx context.Context, cv *lab.Curve) (*curveContext, er
 	if err != nil && lab.KindOf(err) != lab.KindNotFound {
 		return nil, err
 	}
+	var onCurve []lab.Result
 	for _, res := range results {
 		if res.CurveID == cv.ID {
-			out.Samples = append(out.Samples, res)
+			onCurve = append(onCurve, res)
+			out.Samples = append(out.Samples, sampleRow{Result: res, Budget: budgetOf(res)})
 		}
 	}
-	out.Sequence = sequenceOf(seq, cv.Analyte, out.Samples)
+	out.Sequence = sequenceOf(seq, cv.Analyte, onCurve)
 	if out.Checks, err = rd.ListVerifications(ctx, cv.ID); err != nil && lab.KindOf(err) != lab.KindNotFound {
 		return nil, err
 	}

@@ -39,6 +39,8 @@ var uiPages = func() map[string]*template.Template {
 		"pct100":     func(v float64) string { return strconv.FormatFloat(100*v, 'f', 1, 64) },
 		"pct":        func(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) },
 		"rfPct":      func(rf, mean float64) float64 { return 100 * rf / mean }, // an RF as a percentage of RF̄
+		"abs":        math.Abs,
+		"slug":       func(s string) string { return strings.ReplaceAll(s, " ", "-") },
 		"when":       func(t time.Time) string { return t.UTC().Format("2006-01-02 15:04:05 UTC") },
 		"day":        func(t time.Time) string { return t.UTC().Format("2006-01-02") },
 		"statusWord": statusWord,

@@ -157,6 +157,11 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 			"       -d '{\"decision\":\"approve\",\"reason\":\"checked\"}' %s/v1/curves/%s/review\n", base, picks.last)
 		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $QA\" %s/v1/curves/%s/audit\n", base, picks.last)
 	}
+	if picks.nitrate != "" {
+		fmt.Fprintf(w, "  # nitrate results with their uncertainty budget and conformity (invented limit %g mg/L, guard band w = U):\n", demoNitrateLimit)
+		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" %s/v1/runs/%s/results\n", base, picks.nitrate)
+		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" -H 'Accept: application/fhir+json' %s/v1/runs/%s/results\n", base, picks.nitrate)
+	}
 	fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $INSTRUMENT\" -H 'Content-Type: text/csv' --data-binary @testdata/demo/nitrate-run.csv \\\n"+
 		"       '%s/v1/runs?method=%s&instrument=%s&acquired_at=%s'\n", base, demoNitrate, demoUVVis, now().UTC().Format("2006-01-02T15:04:05Z"))
 	immuno.print(w, base)
@@ -243,6 +248,7 @@ type demoPicks struct {
 	badStd   string  // the newest failing arsenic curve (the mis-pipetted standard)
 	last     string  // the newest arsenic curve of the ICP-MS
 	lastResp float64 // a response inside its working range
+	nitrate  string  // the run of the newest nitrate curve: its results carry budgets
 }
 
 // demoPickCurves finds the scenario's curves through the API, so that a
@@ -276,6 +282,17 @@ func demoPickCurves(d *demoClient, token string, now func() time.Time) (demoPick
 	}
 	if len(arsenic) > 0 {
 		p.badStd = arsenic[0].ID
+	}
+	var newestNitrate struct {
+		Curves []struct {
+			RunID string `json:"run_id"`
+		} `json:"curves"`
+	}
+	if err := d.do(token, http.MethodGet, "/v1/curves?instrument="+demoUVVis+"&analyte=NO3-N&limit=1", nil, &newestNitrate); err != nil {
+		return p, err
+	}
+	if len(newestNitrate.Curves) > 0 {
+		p.nitrate = newestNitrate.Curves[0].RunID
 	}
 	newest, err := list("instrument=" + demoICPMS + "&analyte=As&limit=1")
 	if err != nil {

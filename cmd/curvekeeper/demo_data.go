@@ -48,6 +48,8 @@ type demoMethod struct {
 type demoAnalyte struct {
 	Name string `json:"name"`
 	Unit string `json:"unit"`
+	// Uncertainty is the analyte's budget and conformity rule (demo_uncert.go).
+	Uncertainty map[string]any `json:"uncertainty,omitempty"`
 }
 
 type demoStandard struct {
@@ -78,9 +80,9 @@ type demoRun struct {
 
 var demoMethods = []demoMethod{
 	{Name: demoMetals, Model: "linear", Weighting: "1/x^2",
-		Analytes: []demoAnalyte{{"Pb", "ug/L"}, {"As", "ug/L"}}},
+		Analytes: []demoAnalyte{{Name: "Pb", Unit: "ug/L"}, {Name: "As", Unit: "ug/L"}}},
 	{Name: demoNitrate, Model: "linear", Weighting: "auto",
-		Analytes: []demoAnalyte{{"NO3-N", "mg/L"}}},
+		Analytes: []demoAnalyte{{Name: "NO3-N", Unit: "mg/L", Uncertainty: demoNitrateUncertainty}}},
 }
 
 // demoLevels are the nominal concentrations of each analyte's standards.

@@ -96,7 +96,7 @@ type demoImmunoPicks struct {
 func loadImmunoDemo(d *demoClient, tokens map[string]string, now func() time.Time) (demoImmunoPicks, error) {
 	var p demoImmunoPicks
 	m := demoMethod{Name: demoImmunoMethod, Model: "4pl", Weighting: "power_of_mean",
-		Analytes: []demoAnalyte{{"marker-K", "pg/mL"}}}
+		Analytes: []demoAnalyte{{Name: "marker-K", Unit: "pg/mL"}}}
 	if err := d.do(tokens[lab.ScopeAdmin], http.MethodPost, "/v1/methods", m, nil); err != nil {
 		return p, err
 	}

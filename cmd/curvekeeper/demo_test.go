@@ -71,6 +71,18 @@ func TestDemo(t *testing.T) {
 	if n := count(`SELECT count(*) FROM curves WHERE 'standards_in_date' = ANY(failed_checks)`); n != 0 {
 		t.Errorf("%d demo curves failed standards_in_date", n)
 	}
+	// Nitrate results carry their budget and a conformity statement with
+	// the invented limit under the guard band; demo prints their run.
+	if n := count(`SELECT count(*) FROM sample_results WHERE analyte = 'NO3-N' AND uncertainty->'conformity'->>'rule' = 'guard_band_u'
+		AND (uncertainty->'conformity'->>'upper')::float8 = $1 AND jsonb_array_length(uncertainty->'terms') = 3`, demoNitrateLimit); n == 0 {
+		t.Errorf("no nitrate result carries a three-term budget and a guard-band conformity statement")
+	}
+	if n := count(`SELECT count(*) FROM sample_results WHERE analyte <> 'NO3-N' AND uncertainty IS NOT NULL`); n != 0 {
+		t.Errorf("%d results of analytes without an uncertainty spec carry a budget", n)
+	}
+	if !strings.Contains(first, "Accept: application/fhir+json") || !strings.Contains(first, "nitrate results with their uncertainty budget") {
+		t.Errorf("demo does not print the nitrate results' budget and FHIR commands:\n%s", first)
+	}
 	// The runs lie in the four weeks before the clock's date (2026-02-06 to 2026-03-05).
 	if n := count(`SELECT count(*) FROM runs WHERE acquired_at >= '2026-03-06T00:00:00Z' OR acquired_at < '2026-02-06T00:00:00Z'`); n != 0 {
 		t.Errorf("%d runs lie outside the four weeks before the injected clock's date", n)

@@ -49,6 +49,19 @@ func demoMaterials(end time.Time) []demoMaterial {
 	return out
 }
 
+// demoNitrateLimit is the demo lab's drinking-water limit for nitrate as N,
+// in mg/L. It is invented for the scenario, not any regulator's value.
+const demoNitrateLimit = 9.0
+
+// demoNitrateUncertainty is the nitrate method's uncertainty budget: the
+// calibration term, the run's certified stock, the repeatability of the
+// sample's two readings, k from t(ν_eff), and conformity with the invented
+// limit under a guard band w = U.
+var demoNitrateUncertainty = map[string]any{
+	"terms":  []string{"calibration", "standards", "repeatability"},
+	"limits": map[string]any{"upper": demoNitrateLimit, "rule": "guard_band_u"},
+}
+
 // demoStockFor names the demo stock of each analyte, for a run's
 // standard_materials.
 func demoStockFor(analyte string) string {

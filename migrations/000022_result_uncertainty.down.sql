@@ -1,0 +1,1 @@
+ALTER TABLE sample_results DROP COLUMN uncertainty;
