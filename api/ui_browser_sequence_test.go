@@ -3,8 +3,6 @@ package api_test
 import (
 	"fmt"
 	"net/http"
-	"os"
-	"path/filepath"
 	"strings"
 	"testing"
 
@@ -100,10 +98,7 @@ func TestBrowserSequencePage(t *testing.T) {
 	b := newChrome(t)
 	e := newUIEnv(t, false)
 	id := postSequenceRun(t, e)
-	b.do("sign in", chromedp.EmulateViewport(1400, 900), chromedp.Navigate(e.srv.URL+"/ui/sign-in"),
-		chromedp.Click(chromedp.CSS(`#token-sign-in summary`)), chromedp.WaitVisible(chromedp.ID("token")),
-		chromedp.SendKeys(chromedp.ID("token"), e.tokens[lab.ScopeCurvesReview]),
-		chromedp.Click(chromedp.CSS(`#token-sign-in button[type="submit"]`)), chromedp.WaitVisible(chromedp.ID("curve-list")))
+	b.signInWithToken(e.srv.URL, e.tokens[lab.ScopeCurvesReview])
 	b.do("open the curve", chromedp.Navigate(e.srv.URL+"/ui/curves/"+id), chromedp.WaitVisible(chromedp.ID("sequence")),
 		chromedp.ScrollIntoView(chromedp.ID("sequence-h")))
 	text := b.text("#sequence")
@@ -112,20 +107,8 @@ func TestBrowserSequencePage(t *testing.T) {
 			t.Errorf("the visible sequence table lacks %q", want)
 		}
 	}
-	overflow, err := chromedp.Run(b.ctx, chromedp.Evaluate[float64](`document.body.scrollWidth - window.innerWidth`))
-	if err != nil {
-		t.Fatal(err)
-	}
-	if overflow > 0 {
-		t.Errorf("the page is %v px wider than the window", overflow)
-	}
+	b.fitsWindow("1400 px")
 	b.shot("sequence-1400px")
 	// A crop of the section itself, to look at.
-	sec, err := chromedp.Run(b.ctx, chromedp.Screenshot(chromedp.CSS(`section[aria-labelledby="sequence-h"]`), chromedp.NodeVisible))
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := os.WriteFile(filepath.Join(b.dir, "sequence-section-1400px.png"), sec, 0o644); err != nil {
-		t.Fatal(err)
-	}
+	b.shotOf(`section[aria-labelledby="sequence-h"]`, "sequence-section-1400px")
 }

@@ -102,6 +102,41 @@ func (b *chrome) text(sel string) string {
 	return s
 }
 
+// signInWithToken signs in at base with an API token, through the token
+// form kept one click away from the person's, at 1400 px.
+func (b *chrome) signInWithToken(base, token string) {
+	b.t.Helper()
+	b.do("sign in", chromedp.EmulateViewport(1400, 900), chromedp.Navigate(base+"/ui/sign-in"),
+		chromedp.Click(chromedp.CSS(`#token-sign-in summary`)), chromedp.WaitVisible(chromedp.ID("token")),
+		chromedp.SendKeys(chromedp.ID("token"), token),
+		chromedp.Click(chromedp.CSS(`#token-sign-in button[type="submit"]`)), chromedp.WaitVisible(chromedp.ID("curve-list")))
+}
+
+// fitsWindow fails the test when the page is wider than the window (a wide
+// table must scroll inside its own box); what names the view.
+func (b *chrome) fitsWindow(what string) {
+	b.t.Helper()
+	overflow, err := chromedp.Run(b.ctx, chromedp.Evaluate[float64](`document.body.scrollWidth - window.innerWidth`))
+	if err != nil {
+		b.t.Fatal(err)
+	}
+	if overflow > 0 {
+		b.t.Errorf("%s: the page is %v px wider than the window", what, overflow)
+	}
+}
+
+// shotOf saves a screenshot of the first element matching sel as name.png.
+func (b *chrome) shotOf(sel, name string) {
+	b.t.Helper()
+	png, err := chromedp.Run(b.ctx, chromedp.Screenshot(chromedp.CSS(sel), chromedp.NodeVisible))
+	if err != nil {
+		b.t.Fatalf("screenshot %s of %s: %v", name, sel, err)
+	}
+	if err := os.WriteFile(filepath.Join(b.dir, name+".png"), png, 0o644); err != nil {
+		b.t.Fatal(err)
+	}
+}
+
 // location is the tab's URL.
 func (b *chrome) location() string {
 	b.t.Helper()

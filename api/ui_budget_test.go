@@ -1,10 +1,7 @@
 package api_test
 
 import (
-	"context"
 	"net/http"
-	"os"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
@@ -75,76 +72,25 @@ func TestUICurvePageShowsResultBudget(t *testing.T) {
 // conformity statement are visible and that the page is no wider than the
 // window, and saves a screenshot at each width.
 func TestBrowserResultBudget(t *testing.T) {
-	if _, err := os.Stat(chromiumPath); err != nil {
-		if os.Getenv("CI") == "true" {
-			t.Fatalf("%s is missing in CI (install the Debian package chromium): %v", chromiumPath, err)
-		}
-		t.Skipf("%s is not installed (apt-get install chromium); the browser test needs it", chromiumPath)
-	}
-	dir := os.Getenv("CURVEKEEPER_ARTIFACTS")
-	if dir == "" {
-		dir = t.TempDir()
-	}
-	dir = filepath.Join(dir, "browser")
-	if err := os.MkdirAll(dir, 0o755); err != nil {
-		t.Fatal(err)
-	}
+	b := newChrome(t)
 	e := newUIEnv(t, false)
 	id := postBudgetRun(t, e)
-	alloc, cancelAlloc := chromedp.NewExecAllocator(context.Background(),
-		chromedp.ExecPath(chromiumPath), chromedp.Flag("headless", true), chromedp.Flag("no-sandbox", true),
-		chromedp.Flag("disable-gpu", true), chromedp.Flag("no-first-run", true), chromedp.UserDataDir(t.TempDir()))
-	defer cancelAlloc()
-	ctx, cancel := context.WithTimeout(alloc, 3*time.Minute) // a bound, not a measurement
-	defer cancel()
-	ctx, cancelTab := chromedp.NewContext(ctx)
-	defer cancelTab()
-	do := func(step string, actions ...chromedp.Action[chromedp.Void]) {
-		t.Helper()
-		if err := chromedp.Do(ctx, actions...); err != nil {
-			t.Fatalf("%s: %v", step, err)
-		}
-	}
-	do("sign in", chromedp.EmulateViewport(1400, 900), chromedp.Navigate(e.srv.URL+"/ui/sign-in"),
-		chromedp.Click(chromedp.CSS(`#token-sign-in summary`)), chromedp.WaitVisible(chromedp.ID("token")),
-		chromedp.SendKeys(chromedp.ID("token"), e.tokens[lab.ScopeCurvesReview]),
-		chromedp.Click(chromedp.CSS(`#token-sign-in button[type="submit"]`)), chromedp.WaitVisible(chromedp.ID("curve-list")))
+	b.signInWithToken(e.srv.URL, e.tokens[lab.ScopeCurvesReview])
 	for _, width := range []int64{1400, 390} {
-		do("open the budget", chromedp.EmulateViewport(width, 900), chromedp.Navigate(e.srv.URL+"/ui/curves/"+id),
+		b.do("open the budget", chromedp.EmulateViewport(width, 900), chromedp.Navigate(e.srv.URL+"/ui/curves/"+id),
 			chromedp.WaitVisible(chromedp.ID("samples")), chromedp.Click(chromedp.CSS(`details.budget summary`)),
 			chromedp.WaitVisible(chromedp.CSS(`table.budget-table`)), chromedp.ScrollIntoView(chromedp.CSS(`details.budget`)))
-		text, err := chromedp.Run(ctx, chromedp.Text(chromedp.CSS(`details.budget`), chromedp.NodeVisible))
-		if err != nil {
-			t.Fatal(err)
-		}
+		text := b.text(`details.budget`)
 		for _, want := range []string{"standards: CRM-PB-7", "Combined", "Conformity (guard_band_u)", "upper limit 10 ug/L"} {
 			if !strings.Contains(text, want) {
 				t.Errorf("%d px: the open budget does not show %q: %q", width, want, text)
 			}
 		}
-		overflow, err := chromedp.Run(ctx, chromedp.Evaluate[float64](`document.body.scrollWidth - window.innerWidth`))
-		if err != nil {
-			t.Fatal(err)
-		}
-		if overflow > 0 {
-			t.Errorf("%d px: the page is %v px wider than the window", width, overflow)
-		}
-		png, err := chromedp.Run(ctx, chromedp.FullScreenshot(90))
-		if err != nil {
-			t.Fatal(err)
-		}
 		name := map[int64]string{1400: "result-budget-1400px", 390: "result-budget-phone-390px"}[width]
-		if err := os.WriteFile(filepath.Join(dir, name+".png"), png, 0o644); err != nil {
-			t.Fatal(err)
-		}
+		b.fitsWindow(name)
+		b.shot(name)
 		// The samples section alone, with the budget open, for a reviewer
 		// of the page (the full page is long).
-		part, err := chromedp.Run(ctx, chromedp.Screenshot(chromedp.CSS(`#samples`)))
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := os.WriteFile(filepath.Join(dir, name+"-samples.png"), part, 0o644); err != nil {
-			t.Fatal(err)
-		}
+		b.shotOf(`#samples`, name+"-samples")
 	}
 }
