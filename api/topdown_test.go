@@ -294,7 +294,7 @@ func TestTopDownFromHistory(t *testing.T) {
 		e.defineMethod(t, "td-stated", topDownSpec(map[string]any{"top_down_relative": 0.05}))
 		for _, tt := range []struct {
 			method, approach, note string
-			source             *oapi.TopDownSource
+			source                 *oapi.TopDownSource
 		}{
 			{"td-empty", "bottom_up", "U is the bottom-up budget", nil},
 			{"td-stated", "larger", "stated top_down_relative is used", ptrTo(oapi.TopDownSourceStated)},

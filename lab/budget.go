@@ -267,7 +267,7 @@ type TopDownOut struct {
 	ExpandedText string  `json:"expanded_text"`
 	// Source is TopDownSourceStated or TopDownSourceHistory (absent in records made
 	// before the history existed: stated).
-	Source  string               `json:"source,omitempty"`
+	Source  string                `json:"source,omitempty"`
 	History *TopDownProvenanceOut `json:"history,omitempty"`
 }
 
