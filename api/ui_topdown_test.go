@@ -30,7 +30,7 @@ func postTopDownRun(t *testing.T, e *uiEnv) string {
 		"expanded_uncertainty": 0.1, "coverage_factor": 2.0, "lot": "PB-0107", "supplier": "invented supplier",
 		"expires_at": at.AddDate(2, 0, 0).Format(time.RFC3339)}, http.StatusCreated, nil)
 	var run struct {
-		ID     string               `json:"id"`
+		ID     string                `json:"id"`
 		Curves []struct{ ID string } `json:"curves"`
 	}
 	var stds []map[string]any
