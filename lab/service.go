@@ -185,7 +185,9 @@ func (s *Service) Review(ctx context.Context, p Principal, id, decision, reason 
 
 // Verify records a verification standard against a curve on behalf of p;
 // the rules (the curve is current, fitted, not rejected, and the standard
-// measured after it) are checked with the curve locked.
+// measured after it) are checked with the curve locked. A named reference
+// material is checked first (CheckVerificationMaterial): materials and a
+// curve's analyte never change, so no lock is needed for it.
 func (s *Service) Verify(ctx context.Context, p Principal, in VerificationInput) (*Verification, error) {
 	if err := s.checkClaimed(InBody, "/acquired_at", in.At, s.now()); err != nil {
 		return nil, err
