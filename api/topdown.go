@@ -13,7 +13,8 @@ import (
 // GetMethodTopDown answers a method's top-down uncertainty of an analyte
 // from the stored QC history, with the data it used. It tolerates the
 // replica lag: the history of the period read a moment late is the same
-// estimate a moment earlier.
+// estimate a moment earlier (a method the replica does not know yet is
+// asked of the primary, byID).
 func (s *Server) GetMethodTopDown(ctx context.Context, req oapi.GetMethodTopDownRequestObject) (oapi.GetMethodTopDownResponseObject, error) {
 	var from, to time.Time
 	if req.Params.From != nil {
@@ -22,7 +23,9 @@ func (s *Server) GetMethodTopDown(ctx context.Context, req oapi.GetMethodTopDown
 	if req.Params.To != nil {
 		to = req.Params.To.Time
 	}
-	est, err := s.reading(ctx).TopDown(ctx, string(req.Name), string(req.Params.Analyte), from, to)
+	est, _, err := byID(ctx, s, func(rd *lab.Service) (*lab.TopDownEstimate, error) {
+		return rd.TopDown(ctx, string(req.Name), string(req.Params.Analyte), from, to)
+	})
 	if err != nil {
 		return nil, err
 	}
