@@ -245,6 +245,13 @@ func routeFixtures(t *testing.T, e *env) map[string]func(t *testing.T) (call, in
 		"analyte": "nitrate", "unit": "mg/L", "value": 1000.0, "tolerance": 2.0, "expires_at": future}); r.status != http.StatusCreated {
 		t.Fatalf("standard material: %s", r)
 	}
+	// A top-down history for getMethodTopDown: a check standard and CRM-0.
+	for _, v := range []map[string]any{{"level": "CCV", "concentration": 2}, {"level": "CRM", "concentration": 1000, "material": "CRM-0"}} {
+		v["responses"], v["kind"], v["acquired_at"] = []float64{1.5}, "continuing", baseTime.Add(time.Hour).Format(time.RFC3339)
+		if r := e.postJSON(t, e.admin, curve+"/verifications", v); r.status != http.StatusCreated {
+			t.Fatalf("verification for the top-down history: %s", r)
+		}
+	}
 	return map[string]func(t *testing.T) (call, int){
 		"createRun": func(t *testing.T) (call, int) {
 			n++
@@ -292,6 +299,10 @@ func routeFixtures(t *testing.T, e *env) map[string]func(t *testing.T) (call, in
 		"listMethods": func(*testing.T) (call, int) { return call{method: http.MethodGet, path: "/v1/methods"}, http.StatusOK },
 		"getMethod": func(*testing.T) (call, int) {
 			return call{method: http.MethodGet, path: "/v1/methods/nitrate-uv"}, http.StatusOK
+		},
+		"getMethodTopDown": func(*testing.T) (call, int) {
+			return call{method: http.MethodGet, path: "/v1/methods/nitrate-uv/top-down?analyte=nitrate&from=" +
+				baseTime.Format(time.RFC3339) + "&to=" + baseTime.AddDate(0, 0, 1).Format(time.RFC3339)}, http.StatusOK
 		},
 		"createToken": func(*testing.T) (call, int) {
 			return jsonCall(http.MethodPost, "/v1/tokens", map[string]any{"name": "lims-9", "scopes": []string{"results:read"}}), http.StatusCreated

@@ -86,6 +86,14 @@ func budgetOut(rec *lab.BudgetRecord) *oapi.UncertaintyBudget {
 	}
 	if td := rec.TopDown; td != nil {
 		out.TopDown = &oapi.TopDownEstimate{Combined: td.Combined, Expanded: td.Expanded, ExpandedText: td.ExpandedText, Relative: td.Relative}
+		if td.Source != "" {
+			src := oapi.TopDownSource(td.Source)
+			out.TopDown.Source = &src
+		}
+		if h := td.History; h != nil {
+			out.TopDown.History = &oapi.TopDownProvenance{From: oapi.NewTimestamp(h.From), To: oapi.NewTimestamp(h.To),
+				Recoveries: h.QCCount, ReferenceResults: h.CRMCount}
+		}
 	}
 	if m := rec.MonteCarlo; m != nil {
 		out.MonteCarlo = &oapi.MonteCarloCheck{Agrees: m.Agrees, Discarded: m.Discarded, Draws: m.Draws, GumHigh: m.GUMHigh,

@@ -15,6 +15,14 @@ func uuidOf(s string) uuid.UUID {
 	return id
 }
 
+// optString is nil for "" and a pointer to s otherwise.
+func optString(s string) *string {
+	if s == "" {
+		return nil
+	}
+	return &s
+}
+
 func deref(s *string) string {
 	if s == nil {
 		return ""

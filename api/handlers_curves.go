@@ -127,6 +127,9 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		Cautions: calib.Cautions(), Results: make([]oapi.PredictionResult, 0, len(samples)),
 	}
 	bc, err := s.budgetContext(ctx, c)
+	if err == nil {
+		bc, err = s.withHistory(ctx, c, bc)
+	}
 	if err != nil {
 		return oapi.PredictionResponse{}, err
 	}
@@ -180,7 +183,7 @@ func (s *Server) ReviewCurve(ctx context.Context, req oapi.ReviewCurveRequestObj
 	if _, err := s.lab.Review(ctx, p, id, string(req.Body.Decision), reason); err != nil {
 		return nil, err
 	}
-	s.curves.drop(id)
+	s.curveChanged(id)
 	// Read inside the write's unit, so not cached: the unit may still fail.
 	c, err := s.lab.GetCurve(ctx, id)
 	if err != nil {

@@ -73,7 +73,7 @@ func (s *Server) SignCurve(ctx context.Context, req oapi.SignCurveRequestObject)
 		sig, err = s.lab.SignRecord(ctx, mustPrincipal(ctx), req.ID.String(), string(*b.Subject), creds, deref(b.Reason))
 	} else {
 		sig, err = s.lab.SignCurve(ctx, mustPrincipal(ctx), req.ID.String(), creds, string(b.Meaning), decision, deref(b.Reason))
-		s.curves.drop(req.ID.String()) // an approval changes the status
+		s.curveChanged(req.ID.String()) // an approval or rejection changes the status
 	}
 	if err != nil {
 		return nil, err
@@ -101,7 +101,7 @@ func (s *Server) WithdrawSignature(ctx context.Context, req oapi.WithdrawSignatu
 	if err != nil {
 		return nil, err
 	}
-	s.curves.drop(sig.RecordID) // a withdrawn approval returns the curve to review
+	s.curveChanged(sig.RecordID) // a withdrawn approval returns the curve to review
 	return oapi.WithdrawSignature200JSONResponse(signatureOut(sig, true)), nil
 }
 

@@ -17,11 +17,12 @@ func (s *Server) CreateVerification(ctx context.Context, req oapi.CreateVerifica
 	b := req.Body
 	v, err := s.lab.Verify(ctx, p, lab.VerificationInput{
 		CurveID: req.ID.String(), Kind: string(b.Kind), Level: string(b.Level), Concentration: b.Concentration,
-		Responses: b.Responses, At: b.AcquiredAt.Time,
+		Responses: b.Responses, At: b.AcquiredAt.Time, Material: deref(b.Material),
 	})
 	if err != nil {
 		return nil, err
 	}
+	s.history.reset() // the top-down history of the curve's method and analyte grew
 	return oapi.CreateVerification201JSONResponse{Verification: verificationOut(v), ResultsChanged: v.ResultsChanged,
 		Cautions: calib.Cautions()}, nil
 }
@@ -43,7 +44,8 @@ func verificationOut(v *lab.Verification) oapi.Verification {
 	return oapi.Verification{ID: uuidOf(v.ID), CurveID: uuidOf(v.CurveID), Kind: oapi.VerificationKind(v.Kind),
 		Level: v.Level, Concentration: v.Concentration, Responses: nonNil(v.Responses), Found: v.Found,
 		RecoveryPct: v.RecoveryPct, DifferencePct: v.DifferencePct, LimitPct: v.LimitPct, Passed: v.Passed,
-		Detail: v.Detail, Source: calib.VerificationSource, AcquiredAt: oapi.NewTimestamp(v.At), CreatedAt: oapi.NewTimestamp(v.CreatedAt), Actor: v.CreatedBy}
+		Detail: v.Detail, Source: calib.VerificationSource, AcquiredAt: oapi.NewTimestamp(v.At), CreatedAt: oapi.NewTimestamp(v.CreatedAt), Actor: v.CreatedBy,
+		Material: optString(v.Material)}
 }
 
 // CreateExclusion refits a curve without some of its readings as a new
@@ -72,6 +74,7 @@ func (s *Server) CreateExclusion(ctx context.Context, req oapi.CreateExclusionRe
 	if err != nil {
 		return nil, err
 	}
+	s.curveChanged(c.ID) // superseded: its verifications leave the top-down history
 	// Read inside the write's unit, so not cached: the unit may still fail.
 	rc, err := s.lab.GetCurve(ctx, revID)
 	if err != nil {

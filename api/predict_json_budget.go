@@ -62,8 +62,16 @@ var (
 		Combined     float64
 		Expanded     float64
 		ExpandedText string
+		History      *oapi.TopDownProvenance
 		Relative     float64
+		Source       *oapi.TopDownSource
 	}(oapi.TopDownEstimate{})
+	_ = struct {
+		From             oapi.Timestamp
+		Recoveries       int
+		ReferenceResults int
+		To               oapi.Timestamp
+	}(oapi.TopDownProvenance{})
 	_ = struct {
 		Agrees    bool
 		Discarded int
@@ -120,6 +128,18 @@ func (o *jsonOut) str(k, s string) {
 func (o *jsonOut) boolean(k string, v bool) {
 	o.key(k)
 	o.b = strconv.AppendBool(o.b, v)
+}
+
+// timestamp appends t as oapi.Timestamp encodes it (a year outside
+// 0000–9999 stops the encoder, as it stops encoding/json).
+func (o *jsonOut) timestamp(k string, t oapi.Timestamp) {
+	o.key(k)
+	b, err := t.MarshalJSON()
+	if err != nil {
+		o.ok = false
+		return
+	}
+	o.b = append(o.b, b...)
 }
 
 func (o *jsonOut) integer(k string, v int64) {
@@ -219,7 +239,17 @@ func appendBudgetJSON(b []byte, u *oapi.UncertaintyBudget) ([]byte, float64, boo
 		o.float(`,"top_down":{"combined":`, td.Combined)
 		o.float(`,"expanded":`, td.Expanded)
 		o.str(`,"expanded_text":`, td.ExpandedText)
+		if h := td.History; h != nil {
+			o.timestamp(`,"history":{"from":`, h.From)
+			o.integer(`,"recoveries":`, int64(h.Recoveries))
+			o.integer(`,"reference_results":`, int64(h.ReferenceResults))
+			o.timestamp(`,"to":`, h.To)
+			o.key(`}`)
+		}
 		o.float(`,"relative":`, td.Relative)
+		if td.Source != nil {
+			o.str(`,"source":`, string(*td.Source))
+		}
 		o.key(`}`)
 	}
 	o.str(`,"unit":`, u.Unit)

@@ -16,6 +16,7 @@ import (
 	"strconv"
 	"strings"
 	"testing"
+	"time"
 	"unicode/utf8"
 
 	"curvekeeper/api/oapi"
@@ -214,6 +215,17 @@ func randBudget(r *rand.Rand) *oapi.UncertaintyBudget {
 	}
 	if r.IntN(3) == 0 {
 		u.TopDown = &oapi.TopDownEstimate{Combined: randFloat(r), Expanded: randFloat(r), ExpandedText: randString(r), Relative: randFloat(r)}
+		if r.IntN(2) == 0 {
+			src := oapi.TopDownSource(randString(r))
+			u.TopDown.Source = &src
+		}
+		if r.IntN(2) == 0 {
+			// Times from year 0 to 9999 at any nanosecond: the encoder rounds as oapi.Timestamp does.
+			at := func() oapi.Timestamp {
+				return oapi.NewTimestamp(time.Unix(r.Int64N(315537897600)-62167219200, r.Int64N(1e9)))
+			}
+			u.TopDown.History = &oapi.TopDownProvenance{From: at(), To: at(), Recoveries: r.IntN(1 << 20), ReferenceResults: r.IntN(100)}
+		}
 	}
 	if r.IntN(3) == 0 {
 		u.MonteCarlo = &oapi.MonteCarloCheck{Agrees: r.IntN(2) == 0, Discarded: r.IntN(100), Draws: r.IntN(1 << 22),

@@ -74,15 +74,16 @@ func StatusOf(err error) int {
 	}
 	var le *lab.Error
 	if errors.As(err, &le) {
-		return statusOfKind(le.Kind, le.In)
+		return statusOfKind(le.Kind, le.In, le.ShortOfData)
 	}
 	return http.StatusInternalServerError
 }
 
 // statusOfKind is kindStatus, but for one case: an invalid query parameter
-// is a malformed request (400), as the spec's validator answers for one.
-func statusOfKind(k lab.Kind, in lab.Place) int {
-	if k == lab.KindInvalid && in == lab.InQuery {
+// is a malformed request (400), as the spec's validator answers for one,
+// unless the parameters are well-formed and the data fall short (422).
+func statusOfKind(k lab.Kind, in lab.Place, shortOfData bool) int {
+	if k == lab.KindInvalid && in == lab.InQuery && !shortOfData {
 		return http.StatusBadRequest
 	}
 	return kindStatus[k]

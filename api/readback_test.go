@@ -110,6 +110,14 @@ func TestEveryAcceptedWriteReadsBack(t *testing.T) {
 			body := map[string]any{"kind": rapid.SampledFrom([]string{"initial", "continuing"}).Draw(rt, "kind"),
 				"level": genIdentifier.Draw(rt, "level"), "concentration": genConcentration.Draw(rt, "concentration"),
 				"responses": genResponses.Draw(rt, "responses"), "acquired_at": drawTimeAfter(rt, run["acquired_at"].(string))}
+			if rapid.Bool().Draw(rt, "reference material") {
+				// A certified reference material of nitrate at the nominal concentration, in date.
+				code := uniq(genIdentifier.Draw(rt, "material"))
+				answered(rt, e.postJSON(t, e.admin, "/v1/standard-materials", map[string]any{"code": code, "kind": "reference_material",
+					"analyte": "nitrate", "unit": "mg/L", "value": body["concentration"], "expanded_uncertainty": 0.01, "coverage_factor": 2.0,
+					"expires_at": "9999-01-01T00:00:00Z"}), http.StatusCreated)
+				body["material"] = code
+			}
 			v := answered(rt, e.postJSON(t, e.admin, curve+"/verifications", body), http.StatusCreated)["verification"].(map[string]any)
 			sameMembers(rt, "verification", body, v)
 			sameRecord(rt, "verification", v, findByID(rt, readBack(rt, t, e, curve+"/verifications")["verifications"], v["id"]))

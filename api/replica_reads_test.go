@@ -149,6 +149,7 @@ func routedReads(runID, curveID, sampleID string, fresh func(i int) string) []ro
 		{name: "trend", path: fixed("/v1/trends" + trend)},
 		{name: "trend plot", path: fixed("/v1/trends/plot.svg" + trend)},
 		{name: "change feed", path: fixed("/v1/results?limit=10")},
+		{name: "top-down history", path: fixed("/v1/methods/nitrate-uv/top-down?analyte=nitrate&from=2026-03-01T00:00:00Z&to=2026-04-01T00:00:00Z")},
 		{name: "QA curve list", path: fixed("/ui/curves"), ui: true},
 		{name: "QA curve page", path: fixed("/ui/curves/" + curveID), ui: true},
 		{name: "QA curve plot", path: func(i int) string { return "/ui/curves/" + fresh(i) + "/plot.svg" }, ui: true},
@@ -178,6 +179,17 @@ func TestLagTolerantReadsGoToReplica(t *testing.T) {
 		plotCurves = append(plotCurves, id)
 	}
 	_, pending := e.postRun(t, 40)
+	// A top-down history: a check standard and a reference material.
+	if r := e.postJSON(t, e.admin, "/v1/standard-materials", map[string]any{"code": "CRM-R", "kind": "reference_material",
+		"analyte": "nitrate", "unit": "mg/L", "value": 2.0, "tolerance": 0.02, "expires_at": "2030-01-01T00:00:00Z"}); r.status != http.StatusCreated {
+		t.Fatalf("material: %s", r)
+	}
+	for _, v := range []map[string]any{{"level": "CCV"}, {"level": "CRM", "material": "CRM-R"}} {
+		v["concentration"], v["responses"], v["kind"], v["acquired_at"] = 2.0, []float64{1.5}, "continuing", baseTime.Add(time.Hour).Format(time.RFC3339)
+		if r := e.postJSON(t, e.admin, "/v1/curves/"+curveID+"/verifications", v); r.status != http.StatusCreated {
+			t.Fatalf("verification: %s", r)
+		}
+	}
 	e.catchUp(t)
 
 	next := 0

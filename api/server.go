@@ -59,6 +59,7 @@ type Server struct {
 	scopes  scopeTable
 	curves  *curveCache
 	budgets budgetCache   // each curve's budget context (lab.CurveBudgetContext)
+	history historyCache  // the top-down estimate from the QC history per method and analyte
 	limiter *tokenLimiter // nil when rate limiting is off
 	// authFailures counts failed authentications per client address; nil
 	// when that limit is off.
@@ -118,7 +119,7 @@ func New(cfg Config, svc *lab.Service, log *slog.Logger) (*Server, error) {
 	unit, idem := unitOps(doc)
 	oapi.RegisterHandlers(e, oapi.NewStrictHandler(s, []oapi.StrictMiddlewareFunc{s.unitMiddleware(unit, idem)}))
 	s.registerDecodedRoutes(e)
-	s.ui = qaui.New(qaui.Deps{Lab: svc, Log: log, Reading: s.reading, Curve: s.freshCurve, Audit: s.curveAudit, Reviewed: s.curves.drop,
+	s.ui = qaui.New(qaui.Deps{Lab: svc, Log: log, Reading: s.reading, Curve: s.freshCurve, Audit: s.curveAudit, Reviewed: s.curveChanged,
 		Plot:       func(ctx context.Context, id string) ([]byte, error) { return s.plot(ctx, id, curveplot.FormatSVG) },
 		TrendChart: trendChart, RequestID: requestID, Status: StatusOf,
 		WithPrincipal: func(ctx context.Context, p lab.Principal) context.Context {

@@ -8,6 +8,7 @@ import (
 	"slices"
 	"strconv"
 	"strings"
+	"time"
 
 	"curvekeeper/calib"
 )
@@ -48,12 +49,21 @@ type UncertaintySpec struct {
 	// Coverage is calib.CoverageStudentT (the default) or calib.CoverageK2.
 	Coverage string `json:"coverage,omitempty"`
 	// Approach is ApproachBottomUp (the default), ApproachTopDown or
-	// ApproachLarger; the last two need TopDownRelative.
+	// ApproachLarger; the last two need TopDownRelative, or TopDownSource
+	// TopDownSourceHistory.
 	Approach string `json:"approach,omitempty"`
 	// TopDownRelative is the relative standard uncertainty u_c/|y| of the
 	// lab's top-down estimate (calib.ComputeTopDown: within-lab
-	// reproducibility and bias, ISO 11352), used with k = 2.
+	// reproducibility and bias, ISO 11352), used with k = 2. With the
+	// history as source it is the fallback while the history is too short.
 	TopDownRelative float64 `json:"top_down_relative,omitempty"`
+	// TopDownSource is TopDownSourceStated (the default: TopDownRelative) or
+	// TopDownSourceHistory: the estimate from the stored QC history of the
+	// method's analyte (Service.HistoryTopDown) when the result is
+	// computed. While the history is too short, a result takes
+	// TopDownRelative when the spec states one, else the bottom-up budget;
+	// a note says which and why.
+	TopDownSource string `json:"top_down_source,omitempty"`
 	// Limits, when set, are the specification limits a result's conformity
 	// is stated against, with the decision rule.
 	Limits *SpecLimits `json:"limits,omitempty"`
@@ -123,11 +133,17 @@ func checkUncertaintySpec(p string, u *UncertaintySpec) error {
 	switch u.Approach {
 	case "", ApproachBottomUp:
 	case ApproachTopDown, ApproachLarger:
+		if u.TopDownSource == TopDownSourceHistory && u.TopDownRelative == 0 {
+			break // the fallback is the bottom-up budget
+		}
 		if !calib.Finite(u.TopDownRelative) || u.TopDownRelative <= 0 {
-			return FieldError(p+"/top_down_relative", "the %s approach needs top_down_relative > 0", u.Approach)
+			return FieldError(p+"/top_down_relative", "the %s approach needs top_down_relative > 0 (or top_down_source history)", u.Approach)
 		}
 	default:
 		return FieldError(p+"/approach", "approach is bottom_up, top_down or larger")
+	}
+	if u.TopDownSource != "" && u.TopDownSource != TopDownSourceStated && u.TopDownSource != TopDownSourceHistory {
+		return FieldError(p+"/top_down_source", "top_down_source is %s or %s", TopDownSourceStated, TopDownSourceHistory)
 	}
 	if l := u.Limits; l != nil {
 		if l.Lower == nil && l.Upper == nil {
@@ -193,6 +209,10 @@ type BudgetContext struct {
 	Standards *StandardsTerm
 	// MonteCarlo, set for one request, adds the Monte Carlo check.
 	MonteCarlo *MCRequest
+	// History is the top-down estimate from the QC history when the spec's
+	// TopDownSource is TopDownSourceHistory; HistoryGap says why it is nil then.
+	History    *TopDownEstimate
+	HistoryGap string
 }
 
 // MCRequest asks for a Monte Carlo check of a budget (JCGM 101).
@@ -245,6 +265,18 @@ type TopDownOut struct {
 	Combined     float64 `json:"combined"`
 	Expanded     float64 `json:"expanded"`
 	ExpandedText string  `json:"expanded_text"`
+	// Source is TopDownSourceStated or TopDownSourceHistory (absent in records made
+	// before the history existed: stated).
+	Source  string                `json:"source,omitempty"`
+	History *TopDownProvenanceOut `json:"history,omitempty"`
+}
+
+// TopDownProvenanceOut names the history a top-down estimate came from.
+type TopDownProvenanceOut struct {
+	From     time.Time `json:"from"`
+	To       time.Time `json:"to"`
+	QCCount  int       `json:"recoveries"`
+	CRMCount int       `json:"reference_results"`
 }
 
 // MonteCarloOut is the Monte Carlo check beside the GUM budget (bottom-up).
@@ -395,13 +427,15 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 			return nil, err
 		}
 	}
+	rel, tdOut := topDownOf(rec, spec, bc)
 	if rec.Approach != ApproachBottomUp {
 		td, err := calib.ComputeBudget(calib.BudgetInput{Model: calib.ModelSum, Coverage: calib.CoverageK2,
-			Terms: []calib.UncertaintyTerm{{Name: "top-down", Value: b.Value, StdUncertainty: spec.TopDownRelative * math.Abs(b.Value)}}})
+			Terms: []calib.UncertaintyTerm{{Name: "top-down", Value: b.Value, StdUncertainty: rel * math.Abs(b.Value)}}})
 		if err != nil {
 			return nil, err
 		}
-		rec.TopDown = &TopDownOut{Relative: spec.TopDownRelative, Combined: td.Combined, Expanded: td.Expanded, ExpandedText: td.ExpandedText}
+		tdOut.Relative, tdOut.Combined, tdOut.Expanded, tdOut.ExpandedText = rel, td.Combined, td.Expanded, td.ExpandedText
+		rec.TopDown = &tdOut
 		if rec.Approach == ApproachTopDown || td.ExpandedExact > b.ExpandedExact {
 			rec.fill(td)
 			rec.Notes = append(rec.Notes, "U is the top-down estimate (k = 2); the bottom-up terms are shown for reference.")
@@ -424,6 +458,31 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 			Accepted: c.Accepted, Risk: c.Risk, Statement: ConformityStatement(c, rec.ValueText, rec.ExpandedText)}
 	}
 	return rec, nil
+}
+
+// topDownOf returns the relative u of the top-down estimate a result under
+// spec takes and its source: the history's estimate (bc.History), or while
+// there is none the stated TopDownRelative, else none, in which case the
+// record's approach falls back to bottom-up; a note says so.
+func topDownOf(rec *BudgetRecord, spec *UncertaintySpec, bc BudgetContext) (float64, TopDownOut) {
+	if rec.Approach == ApproachBottomUp || spec.TopDownSource != TopDownSourceHistory {
+		return spec.TopDownRelative, TopDownOut{Source: TopDownSourceStated}
+	}
+	if h := bc.History; h != nil {
+		return h.Relative(), TopDownOut{Source: TopDownSourceHistory, History: &TopDownProvenanceOut{From: h.From, To: h.To,
+			QCCount: h.Estimate.QCCount, CRMCount: h.Estimate.CRMCount}}
+	}
+	why := bc.HistoryGap
+	if why == "" {
+		why = "no history was read"
+	}
+	if spec.TopDownRelative > 0 {
+		rec.Notes = append(rec.Notes, "The QC history gives no top-down estimate yet ("+why+"): the method's stated top_down_relative is used instead.")
+		return spec.TopDownRelative, TopDownOut{Source: TopDownSourceStated}
+	}
+	rec.Notes = append(rec.Notes, "The QC history gives no top-down estimate yet ("+why+"): U is the bottom-up budget.")
+	rec.Approach = ApproachBottomUp
+	return 0, TopDownOut{}
 }
 
 // fill sets the record's reported figures from b.
@@ -482,7 +541,7 @@ func (r *BudgetRecord) JSON() ([]byte, error) {
 
 // BudgetContext returns what the budget of a result against c needs.
 func (c *CurveInput) BudgetContext() BudgetContext {
-	return BudgetContext{Spec: c.Rules.Uncertainty, Unit: c.Unit, Standards: c.Standards}
+	return BudgetContext{Spec: c.Rules.Uncertainty, Unit: c.Unit, Standards: c.Standards, History: c.History, HistoryGap: c.HistoryGap}
 }
 
 // ResultBudgetJSON is the stored budget (JSON) of a result of readings
@@ -554,6 +613,19 @@ func (s *Service) budgetContext(ctx context.Context, m *Method, run *Run, runID,
 	return bc, nil
 }
 
+// addHistory adds to bc the top-down estimate from the QC history of
+// method's analyte now, when bc's spec takes it from there. The history
+// changes with every verification, so it is read for each write and kept
+// in no per-curve context.
+func (s *Service) addHistory(ctx context.Context, method, analyte string, bc *BudgetContext) error {
+	if bc.Spec == nil || bc.Spec.TopDownSource != TopDownSourceHistory || bc.Spec.Approach == "" || bc.Spec.Approach == ApproachBottomUp {
+		return nil
+	}
+	var err error
+	bc.History, bc.HistoryGap, err = s.HistoryTopDown(ctx, method, analyte)
+	return err
+}
+
 // runBudgetContexts returns the budget context of each analyte of samples
 // in run under method m; analytes without a spec are absent.
 func (s *Service) runBudgetContexts(ctx context.Context, m *Method, run *Run, samples []Sample) (map[string]BudgetContext, error) {
@@ -563,6 +635,9 @@ func (s *Service) runBudgetContexts(ctx context.Context, m *Method, run *Run, sa
 			continue
 		}
 		bc, err := s.budgetContext(ctx, m, run, run.ID, sm.Analyte)
+		if err == nil {
+			err = s.addHistory(ctx, m.Name, sm.Analyte, &bc)
+		}
 		if err != nil {
 			return nil, err
 		}

@@ -34,6 +34,10 @@ type Error struct {
 	// Fields lists every offending field when there is more than one (rule
 	// breaches checked together); Field and Message then repeat the first.
 	Fields []FieldIssue
+	// ShortOfData marks a well-formed request that the stored data cannot
+	// answer (too little history): unprocessable, even when In names a
+	// query parameter.
+	ShortOfData bool
 }
 
 // Place is where an input was given.

@@ -192,6 +192,9 @@ func (s *Service) Exclude(ctx context.Context, p Principal, c *Curve, points []E
 		rep = calib.FailedReport(fitPts, opts, err)
 	}
 	bc, err := s.budgetContext(ctx, m, nil, c.RunID, c.Analyte)
+	if err == nil {
+		err = s.addHistory(ctx, m.Name, c.Analyte, &bc)
+	}
 	if err != nil {
 		return "", err
 	}

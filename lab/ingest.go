@@ -69,6 +69,13 @@ func (s *Service) Ingest(ctx context.Context, p Principal, in RunInput) (*RunCre
 			return nil, err
 		}
 	}
+	for i := range curves {
+		bc := curves[i].BudgetContext()
+		if err := s.addHistory(ctx, m.Name, curves[i].Analyte, &bc); err != nil {
+			return nil, err
+		}
+		curves[i].History, curves[i].HistoryGap = bc.History, bc.HistoryGap
+	}
 	in.MethodRevision = m.Revision
 	in.TokenID, in.Actor = p.TokenID, p.Actor()
 	return s.store.CreateRun(ctx, in, curves)

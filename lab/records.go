@@ -267,6 +267,10 @@ type VerificationInput struct {
 	Responses     []float64
 	At            time.Time // when it was measured
 	Actor         string
+	// Material, when set, is the reference material the standard is: a
+	// MaterialReference of the curve's analyte and unit, in date at At,
+	// whose certificate value Concentration equals (CheckVerificationMaterial).
+	Material string
 }
 
 // Verification is a stored verification with its outcome.
@@ -286,6 +290,7 @@ type Verification struct {
 	At            time.Time
 	CreatedAt     time.Time
 	CreatedBy     string
+	Material      string // the reference material measured, "" when none
 	// ResultsChanged counts the results whose release state this
 	// verification changed (only when just created).
 	ResultsChanged int

@@ -83,6 +83,10 @@ type CurveInput struct {
 	// Standards is the standards' term of the uncertainty budget, from the
 	// standard materials the run named for the analyte; nil when none.
 	Standards *StandardsTerm
+	// History and HistoryGap are the top-down estimate from the QC history
+	// (or why there is none) when the analyte's spec asks for it.
+	History    *TopDownEstimate
+	HistoryGap string
 }
 
 // RunCreated is what CreateRun stored; it is also the response body kept for

@@ -32,6 +32,10 @@ type Reader interface {
 	GetMethodRevision(ctx context.Context, name string, rev int) (*Method, error)
 	ListMethods(ctx context.Context) ([]Method, error)
 	ListVerifications(ctx context.Context, curveID string) ([]Verification, error)
+	// ReadTopDownHistory reads the verifications of q's method and analyte
+	// on current curves (neither rejected nor superseded) measured in
+	// [q.From, q.To), by time.
+	ReadTopDownHistory(ctx context.Context, q TopDownQuery) (*TopDownHistory, error)
 	GetExclusion(ctx context.Context, id string) (*Exclusion, error)
 	CurveInForce(ctx context.Context, instrument, analyte string, at time.Time) (*InForce, error)
 	RunResults(ctx context.Context, runID string) ([]Result, error)
@@ -181,10 +185,17 @@ func (s *Service) Review(ctx context.Context, p Principal, id, decision, reason 
 
 // Verify records a verification standard against a curve on behalf of p;
 // the rules (the curve is current, fitted, not rejected, and the standard
-// measured after it) are checked with the curve locked.
+// measured after it) are checked with the curve locked. A named reference
+// material is checked first (CheckVerificationMaterial): materials and a
+// curve's analyte never change, so no lock is needed for it.
 func (s *Service) Verify(ctx context.Context, p Principal, in VerificationInput) (*Verification, error) {
 	if err := s.checkClaimed(InBody, "/acquired_at", in.At, s.now()); err != nil {
 		return nil, err
+	}
+	if in.Material != "" {
+		if err := s.checkVerificationMaterial(ctx, in); err != nil {
+			return nil, err
+		}
 	}
 	in.Actor = p.Actor()
 	return s.store.CreateVerification(ctx, in)

@@ -69,6 +69,7 @@ func TestRoutes(t *testing.T) {
 		"GET /v1/instruments/{instrument}/curves/current",
 		"GET /v1/methods",
 		"GET /v1/methods/{name}",
+		"GET /v1/methods/{name}/top-down",
 		"GET /v1/results",
 		"GET /v1/results/{result_id}",
 		"GET /v1/runs/{id}",

@@ -90,22 +90,23 @@ WHERE c.id = $1 FOR UPDATE OF c`, curveID).Scan(&status, &verdict, &acquired, &r
 			return fmt.Errorf("store: verify curve %s: %w", curveID, err)
 		}
 		v = &lab.Verification{ID: id, CurveID: curveID, Kind: in.Kind, Level: in.Level, Concentration: in.Concentration,
-			Responses: in.Responses, LimitPct: res.LimitPct, Passed: res.Passed, Detail: res.Detail, At: in.At.UTC(), CreatedBy: in.Actor}
+			Responses: in.Responses, LimitPct: res.LimitPct, Passed: res.Passed, Detail: res.Detail, At: in.At.UTC(), CreatedBy: in.Actor, Material: in.Material}
 		if res.HasFound {
 			v.Found, v.RecoveryPct, v.DifferencePct = fptr(res.Found), fptr(res.RecoveryPct), fptr(res.DifferencePct)
 		}
 		err = tx.QueryRow(ctx, `
 INSERT INTO verifications (id, curve_id, kind, level, concentration, responses, found, recovery_pct, difference_pct,
-                           limit_pct, passed, detail, at, created_by)
-VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14)
+                           limit_pct, passed, detail, at, created_by, material)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, NULLIF($15, ''))
 RETURNING created_at`, id, curveID, v.Kind, v.Level, v.Concentration, v.Responses, v.Found, v.RecoveryPct,
-			v.DifferencePct, v.LimitPct, v.Passed, v.Detail, v.At, v.CreatedBy).Scan(&v.CreatedAt)
+			v.DifferencePct, v.LimitPct, v.Passed, v.Detail, v.At, v.CreatedBy, v.Material).Scan(&v.CreatedAt)
 		if err != nil {
 			return classify("insert verification", err)
 		}
 		if err := writeAudit(ctx, tx, in.Actor, lab.ActionCurveVerify, entityCurve, curveID, map[string]any{
 			"verification_id": id, "kind": v.Kind, "level": v.Level, "concentration": v.Concentration,
 			"found": v.Found, "difference_pct": v.DifferencePct, "limit_pct": v.LimitPct, "passed": v.Passed, "at": v.At,
+			"material": v.Material,
 		}); err != nil {
 			return err
 		}
@@ -138,7 +139,7 @@ func (db *DB) ListVerifications(ctx context.Context, id string) ([]lab.Verificat
 		}
 		rows, err := tx.Query(ctx, `
 SELECT id, curve_id, kind, level, concentration, responses, found, recovery_pct, difference_pct, limit_pct, passed,
-       detail, at, created_at, created_by
+       detail, at, created_at, created_by, coalesce(material, '')
 FROM verifications WHERE curve_id = $1 ORDER BY at, id`, id)
 		if err != nil {
 			return classify("select verifications", err)
@@ -146,10 +147,57 @@ FROM verifications WHERE curve_id = $1 ORDER BY at, id`, id)
 		out, err = pgx.CollectRows(rows, func(row pgx.CollectableRow) (lab.Verification, error) {
 			var v lab.Verification
 			err := row.Scan(&v.ID, &v.CurveID, &v.Kind, &v.Level, &v.Concentration, &v.Responses, &v.Found, &v.RecoveryPct,
-				&v.DifferencePct, &v.LimitPct, &v.Passed, &v.Detail, &v.At, &v.CreatedAt, &v.CreatedBy)
+				&v.DifferencePct, &v.LimitPct, &v.Passed, &v.Detail, &v.At, &v.CreatedAt, &v.CreatedBy, &v.Material)
 			return v, err
 		})
 		return err
 	})
 	return out, err
+}
+
+// ReadTopDownHistory reads the verifications of q's method (every revision)
+// and analyte measured in [q.From, q.To) against current curves: not
+// rejected in review and not superseded by an exclusion revision (a
+// revision keeps its original's verifications for the release states, but
+// their recoveries were read from the superseded fit). A reference
+// material's certificate u(Cref)/Cref comes with its results.
+func (db *DB) ReadTopDownHistory(ctx context.Context, q lab.TopDownQuery) (*lab.TopDownHistory, error) {
+	h := &lab.TopDownHistory{Points: []lab.TopDownPoint{}}
+	err := db.readOnly(ctx, "read top-down history", func(tx pgx.Tx) error {
+		rows, err := tx.Query(ctx, `
+SELECT v.id, v.curve_id, v.kind, v.level, v.at, v.concentration, v.found, v.recovery_pct, v.passed,
+       coalesce(v.material, ''), coalesce(sm.relative_uncertainty, 0)
+FROM verifications v
+JOIN curves c ON c.id = v.curve_id
+LEFT JOIN standard_materials sm ON sm.code = v.material
+WHERE c.method = $1 AND c.analyte = $2 AND v.at >= $3 AND v.at < $4
+  AND c.status <> $5
+  AND NOT EXISTS (SELECT 1 FROM exclusions n WHERE n.revision_of = c.id)
+ORDER BY v.at, v.id`, q.Method, q.Analyte, q.From, q.To, lab.StatusRejected)
+		if err != nil {
+			return classify("select top-down history", err)
+		}
+		defer rows.Close()
+		for rows.Next() {
+			var (
+				p          lab.TopDownPoint
+				found, rec *float64
+			)
+			if err := rows.Scan(&p.VerificationID, &p.CurveID, &p.Kind, &p.Level, &p.At, &p.Concentration, &found, &rec,
+				&p.Passed, &p.Material, &p.MaterialRelU); err != nil {
+				return classify("scan top-down history", err)
+			}
+			if found == nil || rec == nil {
+				h.Unread++
+				continue
+			}
+			p.Found, p.RecoveryPct = *found, *rec
+			h.Points = append(h.Points, p)
+		}
+		return classify("read top-down history", rows.Err())
+	})
+	if err != nil {
+		return nil, err
+	}
+	return h, nil
 }

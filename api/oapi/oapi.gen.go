@@ -913,6 +913,24 @@ func (e StandardMaterialKind) Valid() bool {
 	}
 }
 
+// Defines values for TopDownSource.
+const (
+	TopDownSourceHistory TopDownSource = "history"
+	TopDownSourceStated  TopDownSource = "stated"
+)
+
+// Valid indicates whether the value is a known member of the TopDownSource enum.
+func (e TopDownSource) Valid() bool {
+	switch e {
+	case TopDownSourceHistory:
+		return true
+	case TopDownSourceStated:
+		return true
+	default:
+		return false
+	}
+}
+
 // Defines values for TrendParameter.
 const (
 	TrendParameterA          TrendParameter = "a"
@@ -3162,13 +3180,106 @@ type TokenRequest struct {
 	Scopes []Scope `json:"scopes"`
 }
 
-// TopDownEstimate The top-down estimate the approach weighed (relative u, k = 2).
+// TopDownEstimate The top-down estimate the approach weighed (relative u, k = 2), its `source` (absent on
+// results stored before the source existed: `stated`) and, from the history, the period and
+// counts it was computed from.
 type TopDownEstimate struct {
 	Combined     float64 `json:"combined"`
 	Expanded     float64 `json:"expanded"`
 	ExpandedText string  `json:"expanded_text"`
-	Relative     float64 `json:"relative"`
+
+	// History The QC history a top-down estimate came from, [from, to).
+	History  *TopDownProvenance `json:"history,omitempty"`
+	Relative float64            `json:"relative"`
+
+	// Source Where `top_down` and `larger` take the top-down estimate from. `stated` (the default):
+	// `top_down_relative`. `history`: computed when the result is computed from the stored QC
+	// history of the method's analyte over the year before
+	// (`GET /v1/methods/{name}/top-down` with its defaults). While the history is too short (fewer
+	// than 2 recoveries or no reference-material result), a result takes `top_down_relative` when
+	// the method states one, else its bottom-up budget (its `approach` is then `bottom_up`); a
+	// note says which and why.
+	Source *TopDownSource `json:"source,omitempty"`
 }
+
+// TopDownPoint One verification the estimate used; `material` and `reference_u_rel` (its certificate's u(Cref)/Cref) are null when it was no reference material.
+type TopDownPoint struct {
+	AcquiredAt    Timestamp `json:"acquired_at"`
+	Concentration float64   `json:"concentration"`
+	CurveID       UUID      `json:"curve_id"`
+	Found         float64   `json:"found"`
+
+	// Kind `initial` (ICV) or `continuing` (CCV) calibration verification.
+	Kind           VerificationKind `json:"kind"`
+	Level          string           `json:"level"`
+	Material       *string          `json:"material"`
+	Passed         bool             `json:"passed"`
+	RecoveryPct    float64          `json:"recovery_pct"`
+	ReferenceURel  *float64         `json:"reference_u_rel"`
+	VerificationID UUID             `json:"verification_id"`
+}
+
+// TopDownProvenance The QC history a top-down estimate came from, [from, to).
+type TopDownProvenance struct {
+	From             Timestamp `json:"from"`
+	Recoveries       int       `json:"recoveries"`
+	ReferenceResults int       `json:"reference_results"`
+	To               Timestamp `json:"to"`
+}
+
+// TopDownReport A method's top-down relative uncertainty of an analyte's results (ISO 11352; Nordtest
+// TR 537), from its stored QC history, with the data it used. Every figure is relative
+// (0.05 = 5 %): `u_rw` the SD of the recoveries found/nominal (within-lab reproducibility),
+// `rms_bias` √(Σb²/n) over the reference-material results (b = (found − certificate)/certificate),
+// `u_cref` the mean u(Cref)/Cref of their certificates, `u_bias` = √(rms_bias² + u_cref²),
+// `combined` u_c = √(u_rw² + u_bias²), `expanded` U = 2·u_c. `notes` say when the data fall
+// short of common-practice minima. The laboratory's accreditation, regulator and SOP come
+// first; a qualified person reviews the estimate before it is used.
+type TopDownReport struct {
+	Analyte string `json:"analyte"`
+
+	// Cautions What the result is and is not: acceptance against configured default
+	// criteria from published guidance; the laboratory's accreditation,
+	// regulator and method SOP take precedence; review by a qualified person
+	// before release.
+	Cautions       Cautions `json:"cautions"`
+	Combined       float64  `json:"combined"`
+	CoverageFactor float64  `json:"coverage_factor"`
+	Expanded       float64  `json:"expanded"`
+
+	// From Start of the period, inclusive.
+	From   Timestamp `json:"from"`
+	Method string    `json:"method"`
+	Notes  []string  `json:"notes"`
+
+	// Recoveries The recoveries used for u(Rw), by time.
+	Recoveries      []TopDownPoint `json:"recoveries"`
+	RecoveriesCount int            `json:"recoveries_count"`
+	ReferenceCount  int            `json:"reference_count"`
+
+	// ReferenceResults The reference-material results used for the bias, by time (they are among `recoveries` too).
+	ReferenceResults []TopDownPoint `json:"reference_results"`
+	RmsBias          float64        `json:"rms_bias"`
+
+	// To End of the period, exclusive.
+	To    Timestamp `json:"to"`
+	UBias float64   `json:"u_bias"`
+	UCref float64   `json:"u_cref"`
+	URw   float64   `json:"u_rw"`
+	Unit  string    `json:"unit"`
+
+	// UnreadCount Verifications in the period whose response had no root on their curve (no recovery, not used).
+	UnreadCount int `json:"unread_count"`
+}
+
+// TopDownSource Where `top_down` and `larger` take the top-down estimate from. `stated` (the default):
+// `top_down_relative`. `history`: computed when the result is computed from the stored QC
+// history of the method's analyte over the year before
+// (`GET /v1/methods/{name}/top-down` with its defaults). While the history is too short (fewer
+// than 2 recoveries or no reference-material result), a result takes `top_down_relative` when
+// the method states one, else its bottom-up budget (its `approach` is then `bottom_up`); a
+// note says which and why.
+type TopDownSource string
 
 // Trend defines model for Trend.
 type Trend struct {
@@ -3284,7 +3395,9 @@ type UncertaintyBudget struct {
 	RelativeCombined *float64         `json:"relative_combined"`
 	Terms            []BudgetTerm     `json:"terms"`
 
-	// TopDown The top-down estimate the approach weighed (relative u, k = 2).
+	// TopDown The top-down estimate the approach weighed (relative u, k = 2), its `source` (absent on
+	// results stored before the source existed: `stated`) and, from the history, the period and
+	// counts it was computed from.
 	TopDown   *TopDownEstimate `json:"top_down,omitempty"`
 	Unit      string           `json:"unit"`
 	Value     float64          `json:"value"`
@@ -3322,8 +3435,17 @@ type UncertaintySpec struct {
 	} `json:"recovery,omitempty"`
 	Terms []BudgetTermKind `json:"terms"`
 
-	// TopDownRelative The lab's top-down relative standard uncertainty (within-lab reproducibility and bias, ISO 11352), used with k = 2; needed by `top_down` and `larger`.
+	// TopDownRelative The lab's top-down relative standard uncertainty (within-lab reproducibility and bias, ISO 11352), used with k = 2; needed by `top_down` and `larger` unless `top_down_source` is `history`, where it is the fallback while the history is too short.
 	TopDownRelative *float64 `json:"top_down_relative,omitempty"`
+
+	// TopDownSource Where `top_down` and `larger` take the top-down estimate from. `stated` (the default):
+	// `top_down_relative`. `history`: computed when the result is computed from the stored QC
+	// history of the method's analyte over the year before
+	// (`GET /v1/methods/{name}/top-down` with its defaults). While the history is too short (fewer
+	// than 2 recoveries or no reference-material result), a result takes `top_down_relative` when
+	// the method states one, else its bottom-up budget (its `approach` is then `bottom_up`); a
+	// note says which and why.
+	TopDownSource *TopDownSource `json:"top_down_source,omitempty"`
 }
 
 // Unit A UCUM unit code, e.g. `mg/L`, `ug/L`, `[ppm]`.
@@ -3363,7 +3485,10 @@ type Verification struct {
 	Level string           `json:"level"`
 
 	// LimitPct The |%D| allowed by the curve's method revision.
-	LimitPct    float64   `json:"limit_pct"`
+	LimitPct float64 `json:"limit_pct"`
+
+	// Material The reference material the standard is; null when none was named.
+	Material    *string   `json:"material"`
 	Passed      bool      `json:"passed"`
 	RecoveryPct *float64  `json:"recovery_pct"`
 	Responses   []float64 `json:"responses"`
@@ -3411,6 +3536,13 @@ type VerificationRequest struct {
 
 	// Level A name of an instrument, analyte, method, level or sample.
 	Level Identifier `json:"level"`
+
+	// Material The code of the certified reference material the standard is, when it is one: a
+	// `reference_material` of the curve's analyte and unit, in date at `acquired_at` (with
+	// every material it was prepared from), whose certificate value `concentration` equals
+	// (422 on `/material` or `/concentration` otherwise). Its results are the bias data of
+	// the method's top-down uncertainty (`GET /v1/methods/{name}/top-down`).
+	Material *string `json:"material,omitempty"`
 
 	// Responses Replicate readings, in acquisition order.
 	Responses Responses `json:"responses"`
@@ -3726,6 +3858,17 @@ type CreateMethodParams struct {
 type GetMethodParams struct {
 	// Revision A specific revision; the latest when absent.
 	Revision *int `form:"revision,omitempty" json:"revision,omitempty"`
+}
+
+// GetMethodTopDownParams defines parameters for GetMethodTopDown.
+type GetMethodTopDownParams struct {
+	Analyte Identifier `form:"analyte" json:"analyte"`
+
+	// From Earliest verification `acquired_at`, inclusive; 365 days before `to` when absent.
+	From *Timestamp `form:"from,omitempty" json:"from,omitempty"`
+
+	// To Latest verification `acquired_at`, exclusive; now when absent.
+	To *Timestamp `form:"to,omitempty" json:"to,omitempty"`
 }
 
 // CreatePersonParams defines parameters for CreatePerson.
@@ -4087,6 +4230,9 @@ type ServerInterface interface {
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx echo.Context, name Identifier, params GetMethodParams) error
+	// GetMethodTopDown Top-down uncertainty from the QC history
+	// (GET /v1/methods/{name}/top-down)
+	GetMethodTopDown(ctx echo.Context, name Identifier, params GetMethodTopDownParams) error
 	// ListPeople List people
 	// (GET /v1/people)
 	ListPeople(ctx echo.Context) error
@@ -4718,6 +4864,45 @@ func (w *ServerInterfaceWrapper) GetMethod(ctx echo.Context) error {
 	return err
 }
 
+// GetMethodTopDown converts echo context to params.
+func (w *ServerInterfaceWrapper) GetMethodTopDown(ctx echo.Context) error {
+	var err error
+	// ------------- Path parameter "name" -------------
+	var name Identifier
+
+	err = runtime.BindStyledParameterWithOptions("simple", "name", ctx.Param("name"), &name, runtime.BindStyledParameterOptions{ParamLocation: runtime.ParamLocationPath, Explode: false, Required: true, Type: "string", Format: "", ValueIsUnescaped: ctx.Request().URL.RawPath == ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter name: %s", err))
+	}
+
+	// Parameter object where we will unmarshal all parameters from the context
+	var params GetMethodTopDownParams
+	// ------------- Required query parameter "analyte" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, true, "analyte", ctx.QueryParams(), &params.Analyte, runtime.BindQueryParameterOptions{Type: "string", Format: ""})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter analyte: %s", err))
+	}
+
+	// ------------- Optional query parameter "from" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "from", ctx.QueryParams(), &params.From, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter from: %s", err))
+	}
+
+	// ------------- Optional query parameter "to" -------------
+
+	err = runtime.BindQueryParameterWithOptions("form", true, false, "to", ctx.QueryParams(), &params.To, runtime.BindQueryParameterOptions{Type: "string", Format: "date-time"})
+	if err != nil {
+		return echo.NewHTTPError(http.StatusBadRequest, fmt.Sprintf("Invalid format for parameter to: %s", err))
+	}
+
+	// Invoke the callback with all the unmarshaled arguments
+	err = w.Handler.GetMethodTopDown(ctx, name, params)
+	return err
+}
+
 // ListPeople converts echo context to params.
 func (w *ServerInterfaceWrapper) ListPeople(ctx echo.Context) error {
 	var err error
@@ -5343,6 +5528,7 @@ func RegisterHandlersWithOptions(router EchoRouter, si ServerInterface, options 
 	router.GET(options.BaseURL+"/v1/methods", wrapper.ListMethods, options.OperationMiddlewares["listMethods"]...)
 	router.POST(options.BaseURL+"/v1/methods", wrapper.CreateMethod, options.OperationMiddlewares["createMethod"]...)
 	router.GET(options.BaseURL+"/v1/methods/:name", wrapper.GetMethod, options.OperationMiddlewares["getMethod"]...)
+	router.GET(options.BaseURL+"/v1/methods/:name/top-down", wrapper.GetMethodTopDown, options.OperationMiddlewares["getMethodTopDown"]...)
 	router.GET(options.BaseURL+"/v1/standard-materials", wrapper.ListStandardMaterials, options.OperationMiddlewares["listStandardMaterials"]...)
 	router.POST(options.BaseURL+"/v1/standard-materials", wrapper.CreateStandardMaterial, options.OperationMiddlewares["createStandardMaterial"]...)
 	router.GET(options.BaseURL+"/v1/standard-materials/:code", wrapper.GetStandardMaterial, options.OperationMiddlewares["getStandardMaterial"]...)
@@ -11210,6 +11396,256 @@ func (response GetMethod503ApplicationProblemPlusJSONResponse) VisitGetMethodRes
 	return err
 }
 
+type GetMethodTopDownRequestObject struct {
+	Name   Identifier `json:"name"`
+	Params GetMethodTopDownParams
+}
+
+type GetMethodTopDownResponseObject interface {
+	VisitGetMethodTopDownResponse(w http.ResponseWriter) error
+}
+
+type GetMethodTopDown200JSONResponse TopDownReport
+
+func (response GetMethodTopDown200JSONResponse) VisitGetMethodTopDownResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(200)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetMethodTopDown400ApplicationProblemPlusJSONResponse struct {
+	BadRequestApplicationProblemPlusJSONResponse
+}
+
+func (response GetMethodTopDown400ApplicationProblemPlusJSONResponse) VisitGetMethodTopDownResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(400)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetMethodTopDown401ApplicationProblemPlusJSONResponse struct {
+	UnauthorizedApplicationProblemPlusJSONResponse
+}
+
+func (response GetMethodTopDown401ApplicationProblemPlusJSONResponse) VisitGetMethodTopDownResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.Header().Set("WWW-Authenticate", fmt.Sprint(response.Headers.WWWAuthenticate))
+	w.WriteHeader(401)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetMethodTopDown403ApplicationProblemPlusJSONResponse struct {
+	ForbiddenApplicationProblemPlusJSONResponse
+}
+
+func (response GetMethodTopDown403ApplicationProblemPlusJSONResponse) VisitGetMethodTopDownResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(403)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetMethodTopDown404ApplicationProblemPlusJSONResponse struct {
+	NotFoundApplicationProblemPlusJSONResponse
+}
+
+func (response GetMethodTopDown404ApplicationProblemPlusJSONResponse) VisitGetMethodTopDownResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(404)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetMethodTopDown422ApplicationProblemPlusJSONResponse struct {
+	UnprocessableEntityApplicationProblemPlusJSONResponse
+}
+
+func (response GetMethodTopDown422ApplicationProblemPlusJSONResponse) VisitGetMethodTopDownResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(422)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetMethodTopDown429ApplicationProblemPlusJSONResponse struct {
+	TooManyRequestsApplicationProblemPlusJSONResponse
+}
+
+func (response GetMethodTopDown429ApplicationProblemPlusJSONResponse) VisitGetMethodTopDownResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(429)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetMethodTopDown500ApplicationProblemPlusJSONResponse struct {
+	InternalErrorApplicationProblemPlusJSONResponse
+}
+
+func (response GetMethodTopDown500ApplicationProblemPlusJSONResponse) VisitGetMethodTopDownResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.WriteHeader(500)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
+type GetMethodTopDown503ApplicationProblemPlusJSONResponse struct {
+	ServiceUnavailableApplicationProblemPlusJSONResponse
+}
+
+func (response GetMethodTopDown503ApplicationProblemPlusJSONResponse) VisitGetMethodTopDownResponse(w http.ResponseWriter) error {
+
+	var buf bytes.Buffer
+	if err := json.NewEncoder(&buf).Encode(response.Body); err != nil {
+		return err
+	}
+	w.Header().Set("Content-Type", "application/problem+json")
+	if response.Headers.RateLimitLimit != nil {
+		w.Header().Set("RateLimit-Limit", fmt.Sprint(*response.Headers.RateLimitLimit))
+	}
+	if response.Headers.RateLimitPolicy != nil {
+		w.Header().Set("RateLimit-Policy", fmt.Sprint(*response.Headers.RateLimitPolicy))
+	}
+	if response.Headers.RateLimitRemaining != nil {
+		w.Header().Set("RateLimit-Remaining", fmt.Sprint(*response.Headers.RateLimitRemaining))
+	}
+	if response.Headers.RateLimitReset != nil {
+		w.Header().Set("RateLimit-Reset", fmt.Sprint(*response.Headers.RateLimitReset))
+	}
+	w.Header().Set("Retry-After", fmt.Sprint(response.Headers.RetryAfter))
+	w.WriteHeader(503)
+	_, err := buf.WriteTo(w)
+	return err
+}
+
 type ListPeopleRequestObject struct {
 }
 
@@ -16301,6 +16737,9 @@ type StrictServerInterface interface {
 	// GetMethod One method
 	// (GET /v1/methods/{name})
 	GetMethod(ctx context.Context, request GetMethodRequestObject) (GetMethodResponseObject, error)
+	// GetMethodTopDown Top-down uncertainty from the QC history
+	// (GET /v1/methods/{name}/top-down)
+	GetMethodTopDown(ctx context.Context, request GetMethodTopDownRequestObject) (GetMethodTopDownResponseObject, error)
 	// ListPeople List people
 	// (GET /v1/people)
 	ListPeople(ctx context.Context, request ListPeopleRequestObject) (ListPeopleResponseObject, error)
@@ -17180,6 +17619,32 @@ func (sh *strictHandler) GetMethod(ctx echo.Context, name Identifier, params Get
 	return nil
 }
 
+// GetMethodTopDown operation middleware
+func (sh *strictHandler) GetMethodTopDown(ctx echo.Context, name Identifier, params GetMethodTopDownParams) error {
+	var request GetMethodTopDownRequestObject
+
+	request.Name = name
+	request.Params = params
+
+	handler := func(ctx echo.Context, request interface{}) (interface{}, error) {
+		return sh.ssi.GetMethodTopDown(ctx.Request().Context(), request.(GetMethodTopDownRequestObject))
+	}
+	for _, middleware := range sh.middlewares {
+		handler = middleware(handler, "GetMethodTopDown")
+	}
+
+	response, err := handler(ctx, request)
+
+	if err != nil {
+		return err
+	} else if validResponse, ok := response.(GetMethodTopDownResponseObject); ok {
+		return validResponse.VisitGetMethodTopDownResponse(ctx.Response())
+	} else if response != nil {
+		return fmt.Errorf("unexpected response type: %T", response)
+	}
+	return nil
+}
+
 // ListPeople operation middleware
 func (sh *strictHandler) ListPeople(ctx echo.Context) error {
 	var request ListPeopleRequestObject
@@ -17828,735 +18293,765 @@ func (sh *strictHandler) GetTrendPlotSVG(ctx echo.Context, params GetTrendPlotSV
 // const string: with thousands of chunks the chained `+` fold is several
 // times slower for the Go compiler than parsing a slice literal.
 var swaggerSpec = []string{
-	"7P3djyNHlicK/iu27FtIUuVkMCIjlUoGBEwoMrOUXfmliEypZ4oqugXdGOGdTjPKzRkRLCkXfbcHg57X",
-	"nocB5mGxwL27/dy9e6FZLOYlGwvsw6D6b1j9JRfnw8zNnU4GGRkpqedmY0aV4XS3z2PHzufvfN8am+nM",
-	"aKUL2xp83zpXMlE5/vNYFuppOk0L/A88SZQd5+msSI1uDVqvzpUozBul71iRq+/myhbiu7kp5ECcm0sx",
-	"lXrhnluRFlaczsdvVCHOTZZYcXmutJjMs2yo28W5Eqfz3BadSMxULpJcTopuqopJ97woZnKWdnNZqAzG",
-	"0eURdvuf9sSJ0oUwWqgLlS+GWmp7qXJRGCH9iC7T4lxIcSGzNKHh9oa6FbXs+FxNJcxqKq/S6XzaGuzt",
-	"7t/f/+zup/v3o9Y01fSwH7WKxUy1Bq1UF+pM5a23b6NybV6aLB0vmhcHF0PM8I1IxMN5v393jJPAf6qD",
-	"y8/p2WWqE3NJD+OBiPGduFw8WJOYXoqH2qqx0YkVvGywpnessOmflDAXKselztUkzTIBq9aJhOqd9US8",
-	"1+8fXH6+H4uJyYf6Xr9sXwpq0y0W7oUwE7HX79dXayaLQuUwxT/+od998O1vDy4/p3/8Ty2/VLbIU31W",
-	"XaljNZWphsdLi3XsBlI4khJTuRC2gDlYpROhzWUkivPUCqOVGJu5LlRCK3B5bjI11H4ymZoUItUBxXUO",
-	"RKLGuZJWWZqikuNzTyFSJ7xedqhlIYqQrmWheqIPNCbF/t6DW6WdY2VVw7k6of2NRG7mOlGJmM8iMddF",
-	"mlWGxqcptXiKhDyTqR7qduyb7/oVj4X6bi4zK4If8b9x50D06SimvqlbmaMq8sXhpFD5yvnBMb2UaSFO",
-	"1cTkSuTwSarPeq2oBVuT5ippDYp8riqDWdfv26g1k7mcqoJZ2NE8v1BPHjYfzzH8eMeKNIEuU3g8k8V5",
-	"K2ppOcWGk7VD+Z9yNWkNWn+xU3LQHfrV7rx+/eQhLsSTRE1nplB6vPi9auATh2KcpUoX3fG5sUqLN2oh",
-	"2lLA97AfUpwZk4jxuUnHqiOKc1mIqXyjLHK4Ik9VMtSXeVooYeVE9cQj4ITi5YuTV/SyLUzOb49NnogC",
-	"P04L0c7n2g6EVWqoYzgchTqe6zgSl+fp+FzIzBoxSfWZymd5qgsrjk6+FqcmSZXt9MTv1cIKmSthx2am",
-	"gLEOdXl4qWel8SxND/DMwsRgXekE89mD3mShmGsNdW7mcN5gd4K+aSFOvjzs7t37FNgS9GRmKpewiBF8",
-	"KmDnhrrcfTzVyAJMshASXsitSvCx0mMD5wqPjGhfnuPyzeRYwc9DPVXTU5ULkydwFxmhDSx6Uaj8QEgR",
-	"z6S1lyZPYsEvpsx0zLzo9Ia6K07kFCccCSunwVCx92BikZikwGkdJwJCylShksFQC5zlJ5+YPD1LtcwE",
-	"XW6ffALd4dry8LELW8hibiOeLUxCiPipGWO3cYe4XhwQY/dYzTK5UMlAAF3HEY5Nm+I81WcitdAA0FWh",
-	"NEyaxsn361jmearsqvYmMrMqriwE8k9oXOXBapicLxz+BQY/EPt7e9B5O6aLfhB28nu1iKtLDOSaKVyr",
-	"6lqmlu+PVItJlp6dFwN8i246nJ4E+pgYoD2cfQF8MMd5wBHBfg59g0jUE5lmcPHsX13B8O9dXXVEYpRF",
-	"GgHBBmnujVpQZ2/UAnrCsZhcJTAYeF7kUls5plUgesZDHNGCQBu01jgGPp6v4GzF0Bi8r67GCpnIQEh/",
-	"J1i45mju5+ZSC6MdTQuh8ZjROCJhSUaCucLr+/0HcDph78tjnFo7h+tHwzkozhW0gvwpVxfmjXLLhq/5",
-	"TUwnOHweyaW0IjMWz4VjsrSvJZutbXD97nmq9Flx3hrs7n2G147/O6rIIofdfye7f+p3H/RGg+633+9G",
-	"u3ufvW0WSZ5oW+TzqdIrhNrU/y7SROkinaQqj5CJGFuopNwk4KGrLo+yk5teIk985zjsl/JMHc1za/Lm",
-	"YcdaXRWjMb4RO7Ka5eoiNXPgf2fqQMhTZB1A9OWRgZ/8LL6bq3xRToOaa206ZB4figBzvermzef6w967",
-	"b+F7OzPaKpQDvpAJy5jw19jogjdfzmZZSlxyZ5ab00xNf/vXFgb6/YY9vqSvqNPqVJ/JbGLyqUqEXehC",
-	"XkXiMjdwwhYzBdwDtZK5gnvDpgkxMWp2IKbu26H+y5MXzyMhBVEwSGu5ElLoOV4+pyoz+swC/xZz/UbD",
-	"sZ+kKkvgEz4gAgT+XOozJS5Sk8lC4a+41cLfmcThPDeDpVnQsW1SCrteK2xaHf5ip6ZDhtJvt1SdNmqB",
-	"X680UdEpNmql/KLWEIviGzYCb+OOHxk9ydLxz0pXeISUNfN8DPIr3P0KjvRpmtDd4K6stiQhVwATUJcq",
-	"ETLLlUwWkZBDTT8BLzPzAu/4IqorzkiScNWmJZPGO8DdrUNNl2vnI6VcQymPcYMSpX9uUqHLPJPjN5YM",
-	"JSS0iyzFyyzVIr7qOnbbxd9s3Pu4mes284kuVK5l9ijPTf5zbqjrWCjomVQlFPotCK1GZwsxbKWVl4Yt",
-	"J92WwnHycX/X7u9zUzwG68vPfVa1BHHBMffyMlZXqS0+7tnaPXspF5mRyStjnsr8TP3cW4enELQyxbew",
-	"VfmFyu9YMTZ6kp7Nc5UItOx+3Me1+3ii8ot0rF5reSHTTJ5mP/tWJrKQp9IqMZYaTt+pEjmYjJU3RNPu",
-	"pmNFuva8KEA0T8yljlDYbk9QvkelvkOG61TbQuoxfakstJgwxz5VYzm3ClVK3zfYYKSAb5LTj3L4OqJh",
-	"c3PX25vXflxapnH3XxnzTOqFc0H8IsJZ4EDLZYE05T05HznGB9z811rOi3OTp39SP+tV/yy1NtVnUanm",
-	"R155N7kg+1oiTpXMVc5ey48ksJoEvvnmm+7hvDhXuoA9U8tmp/gLXMvYWZxFjLJxLGRR5OnpvFCiffz4",
-	"SHx6/16/s94FVTcoEiHNcjNW1sJ19UgXabH4OenpG5VlXbY1pXo2Z2v1aa7kG3T+zDPlLIJ8cR3wCtiY",
-	"3TJwwQ21mUyUTuAyQyNSqTnMM/XxErpGcnmt7Xw2M3mhkmcqSeUrpJSf2zCEF8kdK46o1y6MAq4UbQr0",
-	"vVW8Z0KOwY9gP7KXNTv71h1/XJtDXDGpx+oJHDV4JJMkhdWU2csclrZIlW0N0BFW36Pya1Gc58piNMwB",
-	"nj7cHedJZE8tbJbSZ6kGS1+iJnKeFaJN3h0IWSADjiG30lQV5yZB9jULxvF961SO34zGMhuPMnM5Kkym",
-	"chjBaEaGS3U1zuY2vVDPAu86sBNZtAatxMxBBo/KQIDdful9JzM0LHPZyTTVI/CSjiY5Obmgk3XtNcYT",
-	"NLX8gYZ+bqbGjlUibZGO02Ixktns/NqTeIgvvY3I3gLbuuV3YJMbmclokm775VTqRBYmb4goODpXYOm7",
-	"hHgC9FfOc/pfIqYLlSfpuDjAP9BlR458mVyk1uQL9MkUamqvdfVAP8/lVNF4rp7QR7vl+so8l4tW1Jrr",
-	"9Lu54t/hNuUJqGzrWV+N8skot4nb/urUf3N88tBdc87/IyZyXJicJh/LC5XLMzXKJ7GYmkRlQmaZubSi",
-	"PYbpiJiajzs98ZAP214/EhJERvH6RDx6eShOvul+tv+peIaHTXzW7/cfivYkN1MxVVOTLzq0tpk8NTnu",
-	"0R3LJ1NYxaFw5hIFutuhXlwWe8tHAs5wpi5UZisxQPf6wVndW47BoQ/zkf1uLnMSqt/j4Jt5kaUqH42N",
-	"eWNHye3NzjVsizk6Wf+kbrFx8ApvSdkXKk8nLBcsM7kqlf/wm4c/gO8w+ITMBDJPRPvJ0dc7R0dfdyiC",
-	"DgIxMU7EFhRho80Uo0nQ87gdkQ/1WGbpKcsNYfcbEjyKj7exxG/9E3P612qMAkd5r5YCxxbXMsVN+RsZ",
-	"o0ZMPlaRu3Rted1ufb8uT+/9L89tLskNvl59A27wccP9t8FXjbffBt9V7r7tr6rK5dRwE200gvo9tOlH",
-	"dps9qbLgG3HaTTjqFl/V2OUGX1Z54QYfbMMJQd8hbgiXuErgyDbzRSvaScDqVjM5FJ6vHebb0D7wh3Cj",
-	"avTUROUrD9vqMxyt5TDruUedTqqUuETMy6e5sonNtLBMV+ExXbup3zbxckcv9VhZm55pbEiPQVO6UFmv",
-	"tfb26PfuhSJGr9/v7zYQ3aGW2aJQ194ZVa6PAuR1vOcZvlS/bh6nGO2eWiGp62okJLYsinMZ6nV3rIjx",
-	"h5j9C96jUBFr4RejlW/YTITkFkgpGOpA7J+kRQGWxoWQIku16rgYsUG1Z+wYbvC3Lkxr89i1qPXdXOri",
-	"WmGIBvwVvvsW1IaxyguZ6mJxbdhX+erJTI3p67S4/rO0WDrMODv+vpE4w2FuqftrtysQ/uac9F52o0QE",
-	"sB+B/Q0sbrYnvmF75fLrhYukG+qSzUEbVkIYscU43YWIUzvywXCxOFUYaxaXj8ifRdFAqXUUQSaFoXbv",
-	"CZT7xOHoaudwlFovVcK35aTGRo+VLlxkNoxG8nhYI31yErSZpcpWwt8oyUW0Z8CBdOGUOSd4mtzeEVMl",
-	"tXhy4jW8AyeiDfWn/Z/+5j/t7t0Tv4nE2EynRosnRy+7z07EDNkhyHOhpobzzeTZGUeGwyE8V1lCcRW0",
-	"FxCCR3F6qRVX//3/0hf//J9FkmZzvGD++T+LCQnUJptPlfjnH9105dTMdQEPknwhHDt2EcB+n4caKK1M",
-	"9oBhQLIGnB0eR0WwluNxrpK04BXO1dk8g9/ww5MXL2HeaqgxsvNAyLItMVO5NZpjwVwoUK7sPCtINK/J",
-	"tJnUb0bofvKXCVxkWWa+a+LN+D5xG6RKYcESCezpr+cJLDDGLcLdpDj76wdYzR/ET//xfyVW6NeId/3p",
-	"0xdfibYnzjsQSnypbCG00d0/qdz4s+C5VtTQcrDYpTdtezWkSeTGJbLz0yIQ1WvJLvyjSojw0M5HFHKH",
-	"yYlzlfxycaZGO6bmxybP1Zji+D2pi1gbrTBKS2kY3x9a8ABGrKQeEdseYQMBE2OXRdS66sJX3QuZo+0f",
-	"Pv8C3j0pp/Kcmqs/fqakJnnpC2ocjdDjdCozuzz7YyBqURjaX8wIdC/j7aVkAptdXuuFoEgJ26sv/rrE",
-	"HxhCQWtEBLvC7LDO1OD468jR1HY3XGpHxLtG5+nZ+WohP9Rr+9cNybcJMt+tNOm4QX6tzvSVe/OEXGz+",
-	"DN14hcsWNr+bo1ZAGyOmjWU6c2aMu5DNo7SIHZVhugSxhk6VpEK5cLcxh2355p8nafHoQm1w71dZ6Srm",
-	"8M25pBSJxGjl0jTzue5RwkcSRyJG1tejS7n8W85mubkIn+QKhqkS5Ak1F2XUQhvo8gCeY3rSRNRSt5Bf",
-	"NbdT23hZqG6RTlXTu4kqZJo1a20zmRfpeJ7J3EYi1eNsjj5H6SKVcwyJkNboXmMKRyiwyaLlJhi1vNLD",
-	"vX+7ah+fmrMtd1FduCTpjYwOAbUsWR1qM+CWm8b6BdydxSuVT7eUNV9oJQqVT+lGPsVmysSVsdHk9obr",
-	"dvzux7loe8EEBII7VsAh7fg0OnsucySV+Wj87p8OhjpOJrHQkHmKJy7Vk1SnkLx36HKdfEvcOaYUYrA6",
-	"J/qqfAo6DQpXcTTUsS2SUSD1x5BplMkivcDwdiHZlg/DwI/EbicSsXsHz4JRk0k6TpUuYjGm1Kc4Sa2f",
-	"bAwy0SxXSTrmjDxMacuUvKBhTcn5hiNdCDuVWSbaRis3i5nK+f7uNElNwQA2NHiEW7HhJ8lk3Yt/cG9G",
-	"LdgfuqKDJWiIYYhaZ7mZzxp/cdre0g9u3bcdC5LShjOlONjG7mvEsql5Cehmo3eb1UIeUG3b3KRwa9Yf",
-	"49+nFFXsxLbApg7NOEUOCUvNpP8lVzMlC3maZmmxwL/HECO22FS88wM4qnRYPj8Jui6fvqwMonx+XBtO",
-	"+IsbGKTHSFwgu+LuKxkO3tM64TiFAYcloHXDaZpBGK1X+MZ5Wqg8lSRcz+anWWrPVSLO5mkCHzd4JqoK",
-	"1FBXNSg2lIAiBQ54YBVjlShsiu4mspXU1aqh9mnsmZKWY2X8RbFEvdNUO4fpskka7dVb3k5wA80LlSyv",
-	"9GN4nbg06lLQuBibeZYIDm513+JqacpwVgnKTtgXrkxMN2pMmQaX54vgZj41JlNSV2/9pTlna3BESscL",
-	"kgKMSOacankQ3DPlDM4lkIrGTLpL/HfhJ7LOiNvEkta40785V2iSK61hnICPKg0NBaTNRFXd62hju0yt",
-	"4hmF/vXlVdvEpFbxYtAWBcscNFYyzaWp5MpHc/mr3amUYDjAc9Qo+cHFndoiHa/YQGUL4d+BPZkqafGw",
-	"IssN9/DmO7WCJ/uhORrz6xOV56JqkfZ8fI2cWC54E2wD/Ohk54BbEdzLQMSlUwAEE/IKoJQTeATgl7oz",
-	"AJ55ez5wJpBaQMxxFnxsxF2+Xl0dUTxjJGJvv8evlE2TucxGYMOHB2yot9jK1GhTGJ2O4ZckTydF3BPB",
-	"U9H2awZsjymlI3gTLJkIyXRYGGAlQDDjIlsI3wiFMqNxz+Rv0LIp9ZnquQ4x0N3tkpCFSPWZsmx/1urS",
-	"G39sZmaqYndESyDavXzYByUrlgnc8Gtpntzri6lBkICx0sVQOzWK+rBRmfT4jbLFmcwTQXoVWWNFm+Ay",
-	"fvfoldi52N0pcqUTC8EiTypnXMx1pqwNeUaWEgqSkHao/aJGfAhDCAlGRlKIZHQutdjti9o4hxrzgSLX",
-	"DzVQblW7KBFdnBFT1FgkSK+xFzdGqR4lslCxY77VzSh5bz7XHC+K4QSuATGVeA9n9qDmsVBXMziunk5t",
-	"zPwzLYa6OuSSvkzu1zLCUSOzhTWEUXOMziriDGfgEt1DD8lQk3sFUi+IytbGDTHBwWmpeMpijmdgOa7B",
-	"B1j1/jX4/ULPHZ/0VtQKXXUrjnnopcO3gkNeOuNwJO4YtqIWnrdQyHS7TuLshcrPlEamCFJPasGcNsvN",
-	"JEWeTDPfUNxE1vks1U/ditADtyz411M5fvNi8jgt3IMvl5cHn38hx2+OKkuEj49P/DLR37xWTpB9xCuF",
-	"Pz4JlovfpjU7piXDZy/KdaPxBouHDx7yCuIfrh/7RD+kRcTHR5WVxEcv3XK+9KtJY5gcw4pSGnnpN2m6",
-	"blzcTs3Bwkp7yeFAa7/GJwpmQv9/19jsIL09RfG34dq/NF2bJsCV/FvklIWzhPR5ITMbiX7vHtwO/d6D",
-	"Bw+u9dc+ePCg4rG9t2JUJp+mxeLFvACxJVSo4OYngnays2h4BAGRMJTq3b+OpLmrl9QW/3VUNrnyh8fU",
-	"Ff+Af31bmcRJIQs1VVu7E0Husu5bWPOxb7K8yDwnRsnIMpoLyX1ElHi3BVdfnto3yyFOJOKgdbtZApzP",
-	"ZioPJSHsEGEkUofVRu/QDz/93d+Ly46TCxmFwGi1rezOA8vMZfO4wGd03bjoHfrht7c4qlUSOva3rd3E",
-	"lLS+Vk1YOhwgNaf2zRodnJtGgcr6SxM+IvMh4ZY4gmnUD4CIrhvaQ27gGN5lnUKtxuFhy4A3Wr4mTzUR",
-	"clRVZMJZpBpETYeQiLPA/EsRw7/jTuP4nU9i+Qeg2e32qqam4NK4TXcNco8V+o0qp6zc8YCceCvDtWtU",
-	"XYwucpNhGoPdkq2cnKvLc5kXZCQ2meMc7ScnL8T9z+73u3v1AyIFpKxmqVZNjAP9co5xbGCj4y/4RG/w",
-	"Ad6Im5oUL2WuwQm1xYDcJ5uOqLb/PLxqO7WBVGYdVRbt25LQeIMDpsAbfcynry42lGoMHJS2/xPN8b1I",
-	"HGWp7omjczXtib37or374LPdjth/cLczEPFud8/GQ7SxkLn9VC2MTsS7f9wDjavNE+gcwKt3bYxhR/6d",
-	"u+Lk4YGI96ARUVwaUPK0VeM52vP5Na+yYYtIaAciPu7u0zci+CSC5odanpoLJX6L7/uDT/BxKjOXcK3s",
-	"Uc/73V0L4VDzXCz3PNS+692w693+VSwKpSufcHoNvo2hKqwrALusagGwZK2oBcvRilp79BdMpxW1YDzw",
-	"W/9qQ4kDNnWXWoB/3XX/2vPPjvfdv/Z3/Xv9K6YMUnmaSSPm8L1REQ/EG/G5KNrt3d/OOjt7kfjzfxup",
-	"yaRT1ckORPxmj9/dC+MOfEOtqPVmb1P9gAd3Qh+/apXj/f0eDX8F0tmLmfxujsh6VhWC4MlEG9jPp/vz",
-	"vGRJM+B4+sx5fR1q3L3dvY1Q5EbdRkDbiCBFt437ckFV5KoV33htWkkYpK2aY/llCWc0AzNN4FRCG05V",
-	"GbQx2WfH5kLmqdRjFWNon5rOikVEJhriTJbcu1pB69ANvge8JBIxWy7RAhCDXMyYkDFauizafYca7L4N",
-	"bi85JnY3kkWj3bE0HoCp1r1dFarW+ZJlGaC59Ns48DGsFYzce/ANzmm7APKm4PFwZ5Yn/kRT3GQX4HcZ",
-	"8jJR+QAjLWUu/nDaj8Tp7rcRPxgR2Kf4Az77bi6TXBbp2L0XidO9bw8w+okbwNatkFbEGGfKxvk2W2g0",
-	"hgnRuz2P8zbCX0kM8rPfLICdXRb3mhZitaJ41KAeInY1GecwBMgZob3auFEcdtQqib6pX/ebmMoiT69c",
-	"x+GuRcK++6f2X/3//7e/+eavOj/9z/+fd//vSOSQEZbq8D3aucqS3drarV9YCgVZf7AYyk366E1YVXLD",
-	"b37GkslyD85KIhJ1litlYQUnuVKJmUZCow43C8TpICKLklZHFyq3jSaNV0FYJ5wMep8YlDffEUZl4UJj",
-	"8P2d3V6/128Oc+GoPqOvO9CP/ItvoxZEgNomv9m4gOAhjAeggdDw2N2jjfP2bJwz+TgtHmfyrImTnCt5",
-	"kSpbkBHxuobQrnaCPue3UStNNsPFjEJU0kYPnc82qcVXpbZI9big82ud2WlCtqb1oXmZ10HWTojegtOA",
-	"BovG4dFPI/DDriYqekm4l5rPB0gJlaHvNg19iwB/8OE1HR++38sFE20k0gRDrJWzySOefef6xfTsfAMg",
-	"1gv13L8NHkOTNl5SlPnmDfkskkRupUwu3IAjgVEilC5AnDzVdJnbtLzeNs8ghjG+hGE1HYhKZlON7ymA",
-	"nFRJlUHDJVKofJpq4ijtOZlK2Q1QuWI729pz0Gd13YSO8aW3gUHeJmt4ql/zRF2kNGbbXuxcdSKncfz5",
-	"f7kUnwstLnHCwo5ltrUlyjk0RuzQ2GhXjvmjx/wNtgPRD9cuAb3F71uKGYePZJa9mLQGf9iET31bF6Bf",
-	"5spyqQ+phefy/pBXUhgopDJXTMDk0aZUtNHmnLImYzdEdrvdoxdWyBYYYLl0Kt5XYiC494128oReDSxc",
-	"1Wm8Pnr9TIxNqdSuSObwnoUlruyErNFG7PJrftuzTb5Dr/2OXwNzDJ6G0VjqJE1koVYyNf8GeI/HJndW",
-	"7ljOCxP7jA/Uha7gVsCGMRA1S98o0UYVCqiO/K5oYy9lkBUfdzZmgMTHjtwom7igmys4lXSzc+hLc8md",
-	"u5IMMlMJy0waKC1LLdZoEHY+hf/RruZGHDCqZonKz2rzM/yN/2T5IL9yENdKzK2zvmNJFyp/QdHbtD10",
-	"ihHNBu/GcDQjdA+r5NZHxX2Pz42xypvCbamqRxTH6h3iLG4QDXD+nsdZ53CXkhBZ0T9VRI9JbVZ+urc+",
-	"r2Co0r6hKxE7hzya0bnUSdZYmgeIC16pMgNLKGWcQSYuVQ4WmVnBYXi5SeZjOEYuKtjR5wEZJdy6aCVk",
-	"bqy6PsabIOGJgXsRcVkgjKqw+85q4G3tU07GLKm6efWbeIzTE5rOZH0Za4aB5dukorhW5QVUxKpRANCB",
-	"jy0ING0v1HmDhhe3ncRS8ld/a0QVa01FwwyMKUsaXKObAdjiUc0GsoVh7GswK1vyMdXNGngBhXfpKRWQ",
-	"gQBuLSsk7fJTg1IckpIZczUhPrO/t9eAi7RpUvrphu+NN3xv0+z5sw3fW/Q39Us0b+ET/dhwyOA2aS0r",
-	"/HZTQ6FXyGdQf97cCHEqbdoYLbzggEuXploCdDh3X+P9dSPjoDPxXi9czadTmS/I9DBLc2VX22nSwmUZ",
-	"4LiBnKsUTDEQAut0rHc/Ly3gH0pju5f7M2mLUZh4v8I9LjF0M3xRyAL4u5MRZBFXozdpOEarDa6nr8MB",
-	"vI2+L0kyy1pvl1yltPSODCLK7QmWtmlawSav5FFPU7tt0taNKWcLs3KNhpZsQtKOpia/lha/lPaZIVNQ",
-	"UAPmuq+eq6siqNeytA22VW0uGM8mS/48NFVscSdgUELlOqAzL5PEDoJqJWTjbjeZaTsRu/dMRgjc7Egn",
-	"NdEbhSdzjW7WO1b8+b+iNgBwSaQ/DrWyRTrlUil6fG5yrLGSuKo6HDvD8XFl9EwlyBX8JS7m+ujr0u49",
-	"ftN1MX8qqYpWmHfEYTpDHXP7nIeNYYfisCziY4tcomkAlsq65HFyG9jeUL/0mU6WZDMSZlmdmVsaWgoR",
-	"azCSIDHqFHOn2jHxpxhiknUywjct5iI3uoFooZY5DdorIQ9DZXTd44thXr9o468wfUrVZkAMeA8WHrQ5",
-	"qzoDtktRWChllvfWZlosG9QxZWRFHhTK8cvjf6nyCpmtIDvgkFQFi4wQ5wihitBb7EJvV6NjcSNGnqht",
-	"D/uPOyKXnHUgNc+4aZZBSNFaewHMWHpu1mCjNWejqzVVEuHCTXKJFcWEFJk5qxGtvEptc2aDWY7Qc7Gm",
-	"CcmkgKrVCsY4cjH8NtWQmpNv6FP2DOcoaN8/PPEd+UdPXI9PucPyZd9zWFJyxF19vy6vZ9028GHe+H7g",
-	"cFFvIi0b/3R/Zeslq9g0xw5O3LUk73gnEHHJW+m4OnCDtlXZpMuPImFycQ2146sxvBgz4d+qmaw4V8Wm",
-	"Ij6+O1rjfGDGPtrGEly7VuuUFEZ4lWypclzdJGoDjDyrdYe3pK4mSlh5S7+s1EvdJkrM8ekL0uGkdkaQ",
-	"UGtrVu1QlwteI32uHUvMfYH/UEIKmugiH4947+XTSMRn8YFwb+JPMwrw1IlQV7ORlcXcRUcHDS769HL1",
-	"lZGZTKwqDoRVrE+y5ukc9h3IZ46ZTIn4sWjiWLkaHyXBC6NROWVSrkwwbboLuOKm87S0aXyMHiP2Xz6F",
-	"MyNjXlZE0VAEs3LHeutLZyDSgpPhSo8Cmhmwg8SETqZK+syyTxdmWxs2fHpqinN/0v1Gc26lkrbokq3C",
-	"uoAETJ3UKsU7bIXu7W/aayXkioEhZFhbfrlS/SUGu31+fd1pVoaqJqk808aCFAYkUf6JS1pmzRe1Ej+i",
-	"rQ15vE0OG5obQ4JeRWZE4sYXKCmgj6/4XHnc/HUo0CR3NgZqBHc6TAr79ZIjxy9t6YAa13MbNgrrQBi5",
-	"lADOto2Udg7LZkmJjtu2bXq3fKPTPJdnW4/S5/bgfjUjHO72++9+bNc2DsMuKqva2an8eQMXIZoft58B",
-	"8aCNBQ2PGDgKu2yucJYthPvAEpoEfrDt3MhYu8qHXHe0ou/E10R3dPReSapEOPVjECyeH6MnzWBHVqxa",
-	"QHVLhyVaOuiNtBYck5XSQd0NfBNNXlfhCUNl3kOQhRl34vjxKBWfi8Uo3bkapVCSgoIVC5WUyF+O47YX",
-	"1ay9GkodK5FDvQSfN+DvmGfWB5GkF5jaRFa6hu/r/tEOCsgp5j3rCOOj3+BB3Q3u2aHmi5aAVTDvsJrQ",
-	"GibrVDR9Wit0L3EC403B4ajq78FQL6MY1MDhiN03YcM5K+2y/RbEE7smEkYW/tqCjXT15s9gE7QRx4+b",
-	"w8kasleez6lM+0QcP7aijchqq8gkxbLznea2V0U94fK6gEVs/vixT7mj6vBmApDxNq6oLdeaIAiAdSvw",
-	"YCU3vTrzydbRifXxbTc2m7wvmEs9X2ZiQ4cXzh27KUcGBFFdR096pfGY+1vJ3U58FEWdVuEQUGodSMQ+",
-	"CR1Do2dUH2dERwXxhOifAsEzNV1RPhux8nYrarlUbmTKBNm1acx8OeaX1OqxazT46bBsP3h67Lvyk2ez",
-	"87ZIZpU471sI3q6Et27WHhXhH5Ux3MugZmU4Dr7EcZsp6VuQDhomjwfZ5p3tDvKtBV5uF/R4m1GLGwGI",
-	"Nwp/24ZT3TxiaTnk6IYxQ2tKCDXEU/x8MQihs7/BX18l+DX++yZWV0m6bMgDSsHeMCrzY+NBCMsUSieU",
-	"H9vGhMr5TBRG3OuL3wgZ/AppQmdzCHRAd8E8Hixl3oKR4ALrKGAq1elCgOj9WrSfPD08Er/7bNB/sLPX",
-	"333QqSQZ1UfZilphP1tkVJ1gU4dhS/D4d9DaF1Inr5G6HzLAb1MsNP3iJEWXSEzlM7yDRLQ98sbnfHuQ",
-	"1SdAD+4ciF3SNChe6IYlYfr9xjIkj8Jg+C3E9uuCLRtTPMnd+F54kesDlJ0kR7RJI3EKmq1w7S2us9VK",
-	"PVj5fCnBBnDQJg2v/KbpHC4JWWAiHhHIZdlJkye//k5lmJUg2+s5cW3o4fdBNBH3WBtkgLLZzGo8xW1m",
-	"UFuxF5uD7lY2adk850iGRQHsIBK7XUgWTBpD1w+8Srr8Zf2groLdbQaTXaaXtQvI5Wi3XMLyBG3kXqpt",
-	"V9WbwnNaDVJXp9/NwhVfqauiIVKR4nsUec25dFGe6jdCsvVZaaiS51axDL9kRHB03qdn5/BvzlGRueJP",
-	"vRWncpZuZ7xerc1V2FHd8VM7WE1773KDGrK44abhRCRZT0OyYR6SiBPUrTWnEY1IyIgHlMWNzwRWHBRT",
-	"g3EJUotzmU1KEOBCZi7dgNGuqplJAEIeT9TlyB8+O5qYfGQhOTje3bF/3KPQXYy7I/vLUFPPOGxwVRC6",
-	"lV+8pkIXqQ56qGEtNU6yFbUah7WhaMDL/5CbxoCFb1zD/ONjdXnsm39s8hNKVXbhNyuxA6WAOBoxk2eK",
-	"zPzWCU1wF1JgG/5IIc8yaXalf6lkVpxvyRNKwdutnnlDhJhsih1K/b74fcsN4Zg+rlM5d9VE3E9ONsO0",
-	"rFO+R8p39rdu4HNhi10ooq4tFLEsuJSvj7awsKyBuFwP/r4Z6PxSo2vR35faXIcM6UBjt2huWxv/hjae",
-	"5ZlXLOL1jakNvVyTYMmjEvSRd2itCSgQJRpYrmZkdKkDNMHIJcdEzKkiZx90mNA1tIFP9zcCG/i2/Gdv",
-	"NOh++30/+vTu20b4gSf6r6nQwWa1Z+vhWWWZo41uv1Dc+rahms2To68jcQSRbbl3THMnoi1d4Q+GyuRX",
-	"wrBWVp6sKAxLXvw1pXukyW0NNWAk7GiP6QljJ3w3HvHfUVmwhu/EfA7GfY5BwLncwXqGSCM9LtTgkyE2",
-	"H/Gx/+Qt3CK0WE20yLe7yMEGrRKhMqsorrAteU21UokV7HDH+8QQyJfbDZxlWfOnolwzPNoWWGieCv8S",
-	"B83QZ7WnHunszWrI6/D4p+MLOPn839NWVHkR51maW9yftFWtqOV3cNspBHjYJ+VgynN29HX451H9zy9a",
-	"UWNbX/AA/W9h1ZTg8YmbgH/y1RE/+xYTftFXskVx0uULwZCKc73l8D2JeEMG4cU+MwlJtCdeE5ppTCcB",
-	"gUjALYSi4ULIXA01FhIjj1V47VPBIbKyVNMYRftyVQGtqKxxBTtmB/VSWYii6i6tzgAaeUJTgRml1vG3",
-	"0wXOw91QEQi8dCzb8XhM8Ux1SoaHISnHHWgmqFsELaK9jBFcyrTMeF1lphjsS9cWTiqBWxFrFRgKT6FS",
-	"KGkFvKQ4XN5LSIobaqtgB7BjmeeLLqwHs38f75LmCgGCJ4YqL8PbTnULlqkcIgbQIHULXlVtlnezg7Ri",
-	"QyZHTI+piWvXofFpQ5PUkhLH54g5Gt5PjZKFFxjK8OsvZDE+v5lWz6tf1etvdutvblrhGnJbhKq6mTLz",
-	"qhUFv8acUFvq0mjuxtG0zpX2r7FWXJOrRLXpOCzepRahUg9qLGDuXNbtP5sZNau4ONfhNvKbK5bDbkxt",
-	"70Vo2xHK5gtbrmtqf5ll/ddB1k8YAmlLZbmcqAdRKjEJwuAwgh+LT6ngYFnlIRJxZi6ZawJHjj08WEMs",
-	"IX3drGZeB63Y5E5ENc7M1Io0NT+l1ArumwH/ThfBuKEBQRCB7d/+9Hf/104kpC2thasSXZbClIlgy9jZ",
-	"DKi4hM6VdjGdFaZQBw3rGC6gW7zlNfLm7k0qZZvL7ZazbnBGTEnGmXTeCreDTST4VBaKCP5GauZGYHCu",
-	"Kqi0vlTEQWkTy9VYpRcquRl7uBEnSwKX31oUW/feRgEAdY9FIGFvKFc3uaFLTlK22LiRJU7U9tjSpbnY",
-	"Od4ymWM5AF8NrG4zbjCx3SD611eIqo4JgjRDj0xFlwBJk1+QWeYCwdzvN6nqXQ/YpFE1rvJNYHYfupKV",
-	"LmtPFz6n1WMcY5pZHYXFgqdBzQoRj/O0SMcyG1ENNbAH+LyAdRVXalvkWhmvR6EH/N/d3c/273b3hPuG",
-	"ndq8LVoVdYT6q9F464DxyqxuMg63CJFYbN/9qrqFAIWBmijCXbjlRMvQ5fkC1ri3ogxivTTp6umwfi7o",
-	"Iwk6D04M1nHrqkaZaTAnPTn6Uny1J/yonJJ5t3f33Y//8rc7J9v38t3KXpqoOhK7/Zv1ZNOzqWwWD/zu",
-	"/8vf4qHxzgE8L1U8lhjbGWGUINzaGyJNBl9tbh45gY++wG+a4Vn+5W8ZCEeD/ZPhZzp1AJkiqMmik9WA",
-	"RG0KpsUW+RwQ1NjJw86yVzLD+CXYv6UzF61iCsv0vLaE0lNzljbWs6B4Y7RMnKUUUhJYxp1Z3NnE15rE",
-	"n/nYua1kFB//c10dT//mSyzttH05VQ7QIrtsGEWzNBUJJpERJJWNSri15ugcoIMin6slJCJJZhXMTKNG",
-	"yBQEQNhdtVCWsMBTIJ5Jp1k4bTQ5bFC7vxkiN1TVNsn9uR7xNFhHFCD5ky30x1om6uYnup41uXysHxFo",
-	"GJ4Bu7Q9mLxWpkuifnGe6rNe622toe8b2y2hk2DiaB9dAYVaq7u0kpRQRYpdBGwcYWGkpXG7ondl1pur",
-	"fhdWtnMmfvdsQ2M8HeFHNGRfV+fQN8Ix87RrkElybuZNMAPPvcTD/DExnFsHLW9dFXA7+M9VdVJdCDgN",
-	"CWouTUzVR1rx0G4a5mvTMy2L5nrYjknUN9HXbSs/FoVx5cWEZL0XAj8E7QlbknrlBxXXEX0pKfoNeM0I",
-	"wjH90212/8T3cFg2Wv+JIt4PdeLf+faGwb3BVyMz2wjpxX/9gt9fUY8wCAUOt+U6+DE3igbuVEP98uw5",
-	"alUiYldRWvPpqSF/0Z3WdInTJtwAQoeobvNbhDq6tly2a3b1WG9o/7yBTED2kc2u7rCU6CxP9TidSQ6K",
-	"mhmLwp3I55TaO5WJ4swSvOVOF2UkboQBci7ppHCOr7bDUMfJDUTDpU9waFbY+fi8zFtBDxkmaYsTVYi0",
-	"8DcAQ9dUcswgjYxlDLiFOHGsMMBrId7u9iWKbez8VWljwyu9/Gb5Nn/Ii9rvPbjXWyU6bCUwLF3z18cf",
-	"bnSdl9FmDHeNpvd8rkkfkFqYedE1ky4CUS5VbhxqCACwoh37zJg4EvWyjEgZ5CbEupPtUnDo1AoiBtVW",
-	"byQO8CGuSwXPgnbXvri9+AAafmb0Gcfyh+HBblEJncl5MsCDwa7S9wzj/+z+Z/tNQfw3k0E2N0iuEU5W",
-	"UReEi4BBkBYE2Ze8lOQ+Rn4C3OlUhZDMvFw1FrVC+Vgn2FBKMd79MAQZ+vxT68ScAmRVlz07EJKZ1B3L",
-	"n4Lb2HUCRC1JW7vjZ9B++eKESrzSuux8nyZvd+jHTk/Erpl4QAdifQ/0SDFoKqoFB4GOyH3mZo5xOvZS",
-	"5RbYsdBy6jMe5hlUzG2QseIBie/uz4hL3pYDodggKTLKc8bOysFBNXNCrXWsPKx2NDa6wAzkNAdwCkoK",
-	"sngKBG6CxatVzHWRwlWm9O2Lh42C4a9UJGRxoFkubBL/1rp2n7nDX8vZIidVLBbic3HaF78Vp7vvfrw6",
-	"EHEF455/5588LFw81NXv4H/33v149e6fqMTbZ/ufftrdA27+fKnSTBscCvpU5Wc//c1/eiZzyFpLiqiC",
-	"g9OJ0KhDaCd6qJfQwgYi3p9lNLxE/Bas1pAon3R22rvw59XOuPPH005UQRIa6j/ISJxGYhyJ5NsDEd/b",
-	"oIk/nkUi+CwSZ99i3ntqq6gBsuBkdK55zKjFNVP2WAzn/f5dJfoOE2CSkSksEqeV37hWNWeIlen7LKhJ",
-	"enksEpGnwEujoeZnSiTAHAFF+EBgMEyeKst3+SkMXKszgiyYIOeiBqjloU7SyQSz0PCEdyJxVh0XOC6n",
-	"qoCCy2fic7HrVmL/5VMsCI1YSrSs8t2PV3885fWDBa9CJ/mX2ru49OqP7Z/+7u9P3/141QH4xRVfMeAS",
-	"fbwAElzRgtu2Rf/bRkIkWZ0QF91xsljuCEI4492dxR/34sgnJCCYIc0OIqWmSmqICKogU/BS8KM6IsSg",
-	"hksBdw5u6lB7tIElPKAaOoWPIq3CVQx1Ha+iIbwpwiU7fvzf/z0cWXwP/ghBJ4Y6PDDiD/D7twccSQaL",
-	"lxYLttlAIrsvox2Wvz5+bIca4s/q1a4jX6Jprx+xgPT6RDx6eShOvul+tv8pGwzEZ/1+/2EESBdmKqZq",
-	"ClnVBwIC28Tn4v/3/+zv4LBxAvM2PO6Iz/Hndz+27ej4Mf7eeffjT3/3X9q7O1PxW7G786YDAXCJKMJI",
-	"AI9KVIhZemFAFnW/MUxaXNnhUTHC96BeO44htcFZdY5FKkKUm/nZOZ1yYqZMZSoRuztX7/4pEtaIMMAu",
-	"AHyKlsCaaPCc/SpzFpqgqzvWY4r63BdPzw5+C2NlhjpfAaERYGdgY9BBllqu+e6Tkob6Fe0vvpDqyvDj",
-	"epWQWsYN0U8r4n/wDQNht+5agQKHM7jd7uF/Z1zstHr8lx4wP2hFrXKfNlUSgBE8deMK/nrhxobPvgoG",
-	"iA8em3n+8qn/K71Q5V8vedT4x6Or2Uk48uWHL9zg8adDrrf4GAWQZ0YX6kjmmblJ5gtsFbYgsAk+te2/",
-	"PPrdM7Hb3+14KFlTFGbanc/EKYQ5FhjTyjj2KJo2JOsiGE2z9TFJ7Vjm1biewOQIEKArEETP5tNtKqrC",
-	"65vXd92i4VsMq7kZ/MrmaCiqhrmQ6uLT/WsrQNlzkxfbLDV9sPlcC5OpvLmgHlClnk9Vjh53/6L48/8L",
-	"6NERp3j3D5/19kQb6reCFIL+X12IJD1LCRFyPhp3bhKRQfQXkikvYxnVFILFVMKeymWorGFJigENh4sQ",
-	"uQPTLKC7Q76pxbHmB7VvLMtxy6fdgQ7RyQ4OP4jbKoFwKVwQ0UcdlhzGiLwoC4JlFLv9n/7n/22ZBfhz",
-	"7M0Pew5FoPQ5VGEFQgq8CeHWdhLbaFrRAJR82ashLdW6JEDyOKhZj8rqJM0KldsSMNRnXQaxMIQMDvej",
-	"A82czHNSf+UZg129d73Ypiz+FzOFNtQmo4YRuXQRii6a9wDlQG+sIZkBTCtYfwaiskT8b+Jawtnu3mc3",
-	"yDj7N+hf39273+xgf4l2gW3h828A7JOkFkJekpWXE/56E6wgWIPprFhxeU3mWTZa6b/LzPjN6kL+HN+w",
-	"9FVusuuwotc6OajlcGyuzeVJ+TEGS3gtLgzt6g28OjNlZtuAWGM/186XW1090pv5dCpbGxyUPWZ2wUFp",
-	"2Hje3LWFK/ElzruFOiT1ju59Wu2oH21CLN6CBvYhW3gDGoqn38ku2xRzNK4D47UFcZcNgXBMpg590/DX",
-	"cdk8/PnV4WHZA75d7aXiltlf55RB4KPv5op/LvK52obW/bI2UkY9v6bMVf7AlT7KAHLbDD4yU7lQGiwt",
-	"PiYR6RcxndnoF2OsGgpFWxXODBM9eMbXHq9gvNdU7yhb3wSPQjPkkQpi6nsixth8wkoHMwyG5POfA066",
-	"46ELTADG90NEDxRpDGeTufwwsvqopEwOE+1YXRW5nBmEOkUrjlUFSQaUDwuAFTSczCQx1FN3f30XD4KO",
-	"y5BIkzdGLh6I2BnfAFFDlqY4xPcQrmIIvGdGuTEF+FPcpHWthprPPnRJb5DRkEvNYJhVCyVAnk9P07O5",
-	"mVtsGVbx0gx1pUlfZ7ZShASbQ18dhg2lLs1PJZ2DoY7nmjMBRs56QoMtbaD1tBL4ijbU50EgzjquavkI",
-	"+6ua7TqDyqyGOrW+2NDC6KSy2SZ3tODeD1xKyP/k+FzZaKitWV5dWsO0qNoxArJsRa2AKtEyUdJRK2p5",
-	"kgn+DZGSbtPhn7VdhiYru4TMr768vmO/VL6H8slmbDzgf/D9MQ+ifHwIHS0/flSdaq2Zpy8eNj38qvLw",
-	"ebkMwUNzbEzxRDcMxK3LMS1L+ctrt0BPyvWpTeAwWKjasMqfvq2wrptJCzdNK5saXajRGJS36321dZXx",
-	"F09LW5eM1nDV3Dip8HaKs1W2qKFejf+d81fAerphiDcFCGwOaknv3wjakj7dHseSPbA3oJRj/LIpQncF",
-	"zGZTTbBRLfsIP60tRH1yteA1N4ONpRAe+NYneV0qS7XSAXkzUAaogjuGOTTl3cN2A1+bgeORQx/PpWm+",
-	"itv1a3zrQuRhltoGJE01S5fmD4DulkU4LmjGqy3aRDoirsqBcecG4il8uBo3d4kfpEHm69oQFvde8E1Q",
-	"uqcxbaf0G0HctDktZKp9leR4kqosU3lzDeSpknq0JQ6Sc9asgy33UGVBKV12gyDHuib+t1JStkFMBwnp",
-	"CgXSel2YprRg59Nz9BXUoARid7LttuQ612OVw1oXi2u5avnqF2jybE59XErLq65DQEVlxV6/G/XNDM7T",
-	"MimtZ0t8827Hlv415Ziuzyx9mauZdLA5arat4VsLmaXfzU3hiHEmc6ULinslcGFJaOriwmTzqYrIGE5/",
-	"iFSL6dOy3E7pinj3jxClNC4kFXBrqvlL/Y6m7wWq41opTMYtLX/UYA8PGDPM7T0HQW3ccAi1LQ+WZWl2",
-	"wWhrnTZThjnN1LQBV//xkXiwf+++mNEbghLH7PIerUrBxPC/S8xsyI2rt8TXLwrTZPsnW2JzWgzV316+",
-	"EA1iN8ssTUQKQVxMb2YyoQhJAVcEpd9dni+2uAtxqo/h48abUJcljpaFWZ6VmMnivHE6/ALLrCsbAKPT",
-	"X3VZ4eg+SSCw1wjYYs4fK4F/pLjX7zf2ZVeUS4B+vnz16qWgF8TYJKoCkHvvwYOAEvebvUpFWjThk5+A",
-	"q05YKlbgeQXTD7TSOFR6sGy4en38xLlUFi60MmzMiQPzXA9Q1nuj1EzlA35nwBQS91pVm+510EH4q5tj",
-	"AOy+JnOyQjiD7zc8IK84VlSkhTjNlXzTXBUb7VUqb/6+RvIDIcVfnrx4Ll7SRyLVrhSdSRaRiHew9uwO",
-	"hbRp/B/Ff42BW/OjeKjhbB6dfI0ickxvpPzrgD+XU8Wvs1/UB9qTIec6iCaa13UrW1bV3FKruGgu03X0",
-	"tWj/ptMoVzWVUUNgUn65WMzQm64DsbCM87kqNZC8ElFtxSSTxbbS2NWmZeLDRb1qRW7iTcv5FdcQyk9U",
-	"cROQiTC3xNUjypGJUGwU1nY/YG6MIMaTQqDeUmYkqvwiHWMYFsWoNeDVkOEv20AmmmeFnxNeGa4Q9A2+",
-	"Te0InHXzXN3gY/C+bFhutP5xU6nDY9fSNiW8Qu01KimYDbOFqVhsnXleLEdEeqRKVosn1dKHhdKJwPIR",
-	"FYU7VxQDpxuwe28CMnSLQDpNR4GKXCm7LUIbGMcbwryBEXQv8xTN68Ay8QFEdcVQNSsjhpDIQp5Kiysl",
-	"acEBkFAPtQMkFG1sxHJygbjXv0uSU3ysinzRPQTFr56+U3bO+hN2vEVsHizGN/y9+/sFNlEi99tVUotM",
-	"nHZsRfvcFG5etiMyedZleb/ANy1GRZwZURgHmDJJz+bOy7KVZ43hvcuNvLbq8jK+9jbQ2r6j9ZDalDuw",
-	"guaCQNOtHZ95nhJf26J++pZGUgpJV3p8cwTDiROCqqSCUsmsLpWQKLtCWq5WP20QcU3e+FNtW2hA/v1a",
-	"y5tU/yApdCyzFWngc60hDUXps1SrNWNd/cZq8231y6XOwsFVty/yFNNMiZmSFm3cTdwsSBcK2Re788IE",
-	"sgPgdNAWRLLEwqDvsRCpHWpXPY1rJ4sLlZdOWgqLEadqYlhYIs/GgYiB3UEB5nioa8Zc1B2pOFrELURi",
-	"ridpQfA7Jhd2PlO5VQmD/cih3qjbnpuGq5IRCwvJg4jRUmW2wdpQsU6efCtquZFvzFCwx5eVBvnhcdgu",
-	"P/vGN487WON+2x3TVI/mdk3qIDFrZNSwn9pcroDGk2cjq8ZGJytyNCcyJ4IQp+o8ZbfxLE9BR0Q0CxfM",
-	"L21BwZRVQJ25fqPN5YoyuWutNmX5kOV6IGkhzlRBrgGcaXuuEbIbVjyCe4tQykh1muskQuHH39mRINbZ",
-	"WcG7cG8aoiIZllakWnS7Thro4pU9zzMW2nYrGjnj0m9asMb1Hbktbj7+FFTwtQPt2lIR4JrozL9hO3Vh",
-	"B5Q40p5rtJzCCaxlLsx1WnTColrw79BwKP75Rz6QQy2nWAT9n38USb4QDjs5ApGBgSErlwhIvtB+JHJy",
-	"UUcOqy1bwqAe6vIbeKkGsGWjiqTs5WKX/fHkhAjV13x1bMojP3u3k+8GFH3LhcJrEJ/XVIaFwa4pDSuu",
-	"rQxLTrym0rC0pLfo7iXcq9HKWoC0d1jEauJxmTar4lHHZdvgK+9saYg09TWSbyLjrAw/NbNQuPzn/9yK",
-	"Wv/846ZFbXBMz+ZZkc6yRSviBw+xuDH7Z1aVWHTHeFtzAcfv0ffeQ2xmG4lF3gCwuYe7QXGut+qPzFZb",
-	"nXu/8yYvl3i4m7zNtRiXhW111bwdK/fpqr9hn1f90WaO/qt+q3y7pOv6WWw6eX7R/L67deGp8dSXt6QJ",
-	"Vy4ghmuCBcLYlOVQzDKmvkzMZIwCH8FHzk8yUYxNntNQVnjn68UX/f8Ft2p3+belLTkOPXX1GsSlbxiH",
-	"TGCgSxXrttBsy0jRLUKFcJDzrHh0ofS25j1Y+/E5xj0gvjLRBqIsoOxJFZY5i+MSkR3E0yfPThixAFyA",
-	"4wIql4Fo5arGSEGiIeAeZhROSJKDdwY6N24k0P1Lub9OOoj8jevLc/Ln3sLqsbJmCHICxie4T4eaXkTd",
-	"z6VxqnJSbcQGJRhHmnXnoNQAcKoxJYLGTh2gNlK8VHVxx/ZE/LtHhDtBzdqd7+kfozR5G5dxoRg9i+VZ",
-	"EYQFpQmLAnXjjXzLNZu3aWcsWSW4noUjiR3h+2+jzXGDGxFkt7ZRrKr2+mo5KGh1xddl4z+nGDthdbkC",
-	"7IaRaSvCeF6FBIjvkPqjRUzhCbSy8TZcYp4VK8N2bic+Z4lIlgoEUeYKe8rUiI7T5ipwSU2+oeAhGiiO",
-	"XJMUy3+RQkSWbTZdvDpnVsU6PhupsYoUDxVX2Gi1UcWcwEzyNvq+3Owso0pQa+u9Buzk+s2s9NRyHO/6",
-	"70JNzktCfJ6W0/7cbfig37+/++DB3r39+/v9Bw92r4tg2rKCOBL0aEXomFXfrVeN0emgIGky1bBpVjHa",
-	"Aik0yIErh/G9p7ccoPXzBU5tGtQJy4YM3de0IYZdp7SlQxLWCPbUEW5SUCp9beRoLZqrWto8CM5aF+ZV",
-	"5zGOX64QFat3TeNxR8cHo/dKgk9zFdGRUgYizue6R6efcNfnGulpqGkNbCdyNeZsTyaAs8F/CZkkZGmQ",
-	"XFsuxhXqkYqNGSr0IDQzxv41jwMYo1PIQzn1oHtI7YXxaGcrrSBRuTf0oGoBRfd06pT8uifIT9RvMM7I",
-	"7SyP2/8Zjto/9INuRa3lEW/I2XHDjuf6yI0GH9BNZw+TxD05dgPCv76ujgefPQqGQ424MX3jh+SJ5TEn",
-	"PH/glDIkrG31XpLLG+7qc2lHU3O939kVr30btSBdejTeMPm6MckahV+8HE3JcXvXhm3wzKsjCKZwvfbn",
-	"hJamZDU0vE7QzmpylbjCI3ScB8z/69HOEUMGaUPQeHFQT02MzTxL0Hh7qrjSBJxibYqRyxsj10UbZXXy",
-	"qzD4ZlKpG30gljBrnJNgATBKUJHOzAubJmp0merEXFKjywBBd8oCdJRRx59RvnsJLoONHASqi2DYIfAC",
-	"dIijQJyYHquRexwPdbsss5e6QoXCvUjfY1npst0DYZUqG6v7l//VZGJh47jv+M/qFrcwxKO6Q62o5SY9",
-	"2tp7AytXyeWiR5U8Lj751UUKPqX8rcqDr/yDIG+LH9RytrjDWr4WPW3K1QoGGOZpBd0vP35ujnhB3d/F",
-	"V9VVpedPTl7Q0n7jVpaen/D61rxXVUPgtgkjST1HfPfTa1PEMTip9lkY4LjKGQudua9Xs7RjNeaE8g98",
-	"9ZSmznVfhCplg48IH1/Lqh008pbeIcatTNQ4JQjkGUOco3e45s6FV5sK3WxQtoE/zu9YQudsLtOwDaYF",
-	"j/j66xw6fujeXuNrfB6U9WkuA7AMP1LbLD+oQIx3FtwVcBG18YUQBeSTx7bw7U15HeJ2+o/p72Nu4m35",
-	"4CaJnLex6puBRxNA8xJs9DfniwNfO7YJY58QHV1pZ8DjgziCeLlKi59K467MM/V1am4W/cNq2Qq7ki+G",
-	"eWGyC+d4TadqS7uzU9+XfTI4h4bMtMwqL1zudvesuJQ5xKdEVO/E/UQNkBO0OY7AeVmuyeMtcpPBOm5T",
-	"vt57MXAS/rsoWNTm7dLbJsqgYiktC6+9W7LublW/hsHp0+agqht5da8v8ULI5ZeVmW9R22ULPWquSRhp",
-	"IFLX4YpE40LpAvMGKuN1y6VDJOS/JiY7thebsse5foy9Q5RbKyr/Pjr5Gtnj5paz0v+1XSJZabHd9pvR",
-	"5mVMzEpYrJvcc9un0h/Pgxz6huBOMjo5kHy70jpcBdO3niJgQ5N6PS+KZ9485rKC+r/RtHwp++uAYdAs",
-	"5+1m9e2rEE/dOue3zh+UxpIi4fDL/fHn9DqJ0Zl7fg45uGQdDZ5M+A1hfVzB+lb0/hxm01PcmAm78QJi",
-	"7z9DMegtrPk3AU3YFi5hfeVU15ofzIrVu2kxmRvcyz8npw4Z77qvPG7h+zBXXyanHnqwxOlYs9+kZX7V",
-	"t70Jtz7CvCKWcVaz7TvW/2ip3udUgi0NYymxPBY46d0rXf99pyceQaKSL0shfdt3bBnKh3GiqLQi0mfs",
-	"+wIDFlBI7OyS7msyR9aepQUJHJiKrRKK9ASTE6OKYdGYhZAFADaV9Mg1IvxnHLkMX3AWNn6oEoojxDEi",
-	"VJMv6SLmOlPWLteHS4uyHBya+zYikxoxexK5198AS652Oy4zbkJhCxg3zp7AYdqyEFODSKn9PiUPu4xc",
-	"eOS+sOCz/4y+YbdhbiAVyggLS7Y5Noa7l1ceiM1he/ylveaKLpdmJXPzeDI/i41pCwmmYm1qUCC38B4v",
-	"aW/smdwQi6aUEW8P+2h1yMnuKqF3gziRFd7xCiSEX/0N2rtedGyqRB7Mbu1y3qi4/M9V2j3JFyMXIb68",
-	"SQ/zBXD9QuVBGHnhorMFVoxK8kWXwPwFlg2+SV2o3ZWwDxTd/v7wEdSOjw1de5jgnRsgkqR2VKHAzSxr",
-	"ATxJY+nkZhcYfePBs9nR5tMG0HgFv/qKBzYODHX1gpmojjcW5PB2KK8N3BB6xQdNUHJCgwsTn0PIqsVo",
-	"f4eHkmoRVz7FPYw7mBhNVeUDNJU43O34AEv1QWuaQDK3oM0lOloexGaEtCk7WcVDKvLfDVwKVW+mbY6v",
-	"JXmOpnjHBj7T01yO3yhE7Vy4mmjVzDAr2k+Ovt45Ovq6dM2ydPag/9Pf/Kfd3b74DSQGne44sbdMYe8c",
-	"EDFKAd9jab7ICYA0GmFT5/vARCdfl81VeHHOxxImnYzbkN/BTeAv2gy1mSmwsVYS6jDbrU0102ETM1Wo",
-	"uIPZJpnBroxWUaWnwpieOMQhc3Gc3b7wcS8awmjct/COzFm8hAroYzOdGi1myE7HZOiF8jJ7/X7vsy6a",
-	"2ehU2g5JwxIhLsbnIaQpcF4++BwWWXqgm4Jj3bwazE8m8HRfphjwB2UvEZd9rmEaKnFUEHjAQYx2UTKN",
-	"ZumS4jaWhZ64TxrExr0txUY/48pIms5YRQLb1mzNBOac5UGyVOkBUdqpMB/Gur1VVPM1iIGHjeho1VzS",
-	"M0mFeCjMF9XEGCPRtof5uwl8fhj1vNkVS9Jx4+3qqjvWI5rHWGkhN9PeLQZO+9P7Off7IQKlA4xDFyoN",
-	"wfhlhA/EvjTE8Dg8xDLMaAssxGsCqpNrYrrTBAO6yVSAmRQTpZxYkt5ywKqTcXyR2WvZ0gnVNvqAoeHv",
-	"i724fsbV/OxfV8T1bShstx5jvZFtzglmHL7y3qHQlSSAa3yGYWYRHGhCFYDdddng2Mrm3sTbisOuDvj1",
-	"0etniHHkTJF8M92xNXZL6ccIGSDiyk8QEFxd15gYmodx50Jv18df3ix0u2ppCrX/zeA2twHyXBXhvRyn",
-	"XjvSDdSzcd37UP7512ghW3eaGyHAtzKKUe/2Zt6RbR0JT2WhrvEk3A7e+cnYzFQFzWeu7aDEQcKlGQCB",
-	"ewfcwMe/YyWWTasaQ0fHc20dRhI9oA6OqX18hD4w60Pa8dkhdQTjrfLarYNLnKAxyyRWeCCGSQ4QbroB",
-	"TA3SZEdlmuwNlG8fkIxtCTs/LdiMRrw7cRHkLkzblXYFIQ2ZCruq8XsXoAw/EGKEq48IZWHu+MLg+LKN",
-	"fHfOZ1KCtiCiBGNNYEvRUJ+lWGw81gprh1YEtBpPFpzfSdd5zHIslsuWMApp5znW4mSUB6O5KacClc4Y",
-	"oa6wiGdjSicJ0s3YQTTJ5kpXWm2a0D4zWTperEAekoVyTsr3AA7YOHl9CeURhxYOxM868msTUSK7wyGA",
-	"mTcdeDIh3BybqkTibEDZJEtS81aswABoDjTzTa1FtlyC6pJ5vhhhEaftTyh+3DWUzsz1CKuSig//bz85",
-	"+lI82+2Ld/9wt7fX+5TLvNDRTlLgEtmCtL6hDmFQXOkbPvbOGbsQ9txcCueb2+uL37jenz598dUd6wYR",
-	"VJIpz39oAw6wCpcwCdGKJO6VbbvRmNzeoaaenJR1isCuxViOXJiXrU0BIMqBCGENWWOTPs8dpTg51CW4",
-	"igs3xsDmRNmeeE/GQOuyFc6F+2YmrV3FU/w7421b3VJ3o6tl/clZc+QUHHdZrJoG011FwV1uP7Wja9pJ",
-	"7VYrnNq1i5vaLdY18KVs+MW6rjeNdy3Xo2ERl3atYfejGmlWSWqJCGubUJ12sP5+8cJF9lP2pOIn2sQ1",
-	"kbt9CP6frs92X/rBk1RdSiNG+tegUybiXOUq4lrl0xTx838AQeWHDS1k68jhmhuLnRhbUKsXBjaYEkie",
-	"G6F93aR0MGo2AYFytrMnlMrctrtkyZ+xJvucr5cKaCB/Rfck+RAORL8aH7q8A9oU2xUVjVrs2NlyePzV",
-	"lsO7jnxWGtm8ca0ZENFn0TmLGiaJbahnsZBSRURcSiALNamyh2XJ0xPQUhq8W+iSItx+eRYTSJuNumd6",
-	"NpVfSJuuMGD/y9+6vQJ566u99vFeh5iAFU9fPBSfi7u9u+9+/Je/3TlB0ebpi6/E52K3T496UPgQ+bRN",
-	"qAajOHnoGgwxx7WZInweCkttrDZcnBuQsdBBnIRK0wQxm2MSsUYYH0XN252f/u6/XDrcH2wc2sZ82FUC",
-	"WeQGBf9DgRPwWTqdYUIr4UG3FUhPwxLt1abJXGbwGWM70pdQ3VDE7udyzsEH0VCXq1AOEwqUa/BLYTtQ",
-	"eXFeGE67dc7ZgSjXMoAUzecaYfriKSSiOggni66FqcmdSFxCOqkM1nVp/aqpstC/v2RdZfPwfbJMuIlu",
-	"ejA8tR1S++WDL6Cnk6Ty7Cl2+RR6rP1yzF2fUBqmz6TfvmJXoXQBwZtOH2uGEaVdBHMHWEvnOUYs8tfC",
-	"FuCpPUeficQS3+fNXljXnT2Xe/c+Xe7t5MvD7t69T0X7XF2VyP5SG41w/Yg9bCbBYDBJJz3TjQnv1TzA",
-	"FZLCJhb61QWnp1KnE2WLFf7Ll3mqC3YdRajdYFjM61dHFA5pYFZFCj9Kh/J4Pp9KjUiiCIWLGZigmdlV",
-	"uUDcbBUN2xnHGI6itBWnp2mWFovN6ZXo6hl1UlrEaj8clh0tf1PtGO4sWpfV5b/X+oZg41cWX3FCS5qI",
-	"NgQzOE0RqQUaW4X0iq021zChCjie1AYMChKDDxX3h9ysuACASVADC2HreHOdM2qy0cHy+tXR5i4T384I",
-	"qap5cbBiP8XaFk7Ky+TpHUtJhn/C0BKoGHT37t0HZQQLPL8DAdwTq3z9AUaEQw5ttKIWUo08nW0BoI9j",
-	"ICU8f/3qaMAAwvBJ5eQIWSKeysTiFoUl9KF4/vf7b7v0j73yH6/cPwZL/2j/ux/+8Nvut0vPO43l9mH0",
-	"I5hnI805yBSZrfNaurf0VgEE5Veni+t1wjRpVYk1PBCRL+pdOWAliwjJbZlkwlVY4tXR0l1R534rpCvi",
-	"BTcoee8Ra7ZwzrhPrg2jDRpfO+73z4R+z4xtPxKXL10mby/9FORxb1dGP7hClsphIDwS8jHH4koYGk7/",
-	"L6zKJgc+upM5Pb0mtfDsEPmkdxe3qRyGneOqU3jHh7vAeCNX3mPV35uus3oLy7eaq5pfhabYu3c9pEXJ",
-	"VcIP+w2gFlGLF2zFNZW6W0q0WW52t1WnF95MJJgHWzMJkm9QjMM4Vq7zRloc7XfkOjhdwO6iEcly8Xcm",
-	"pCVSIOwbPgJ5iPuA7U7nhOetxakSUhsUOelGKAH9S10CLbTYRmqFr05AxEiBOwuajGijLSRysUe1SAUK",
-	"V+5UJiS+k10/zrVzAtuyEUlKoEQzYwuvjoDmId+o6hKH9O2gbfyPpRP9hoR9QlThIF5W/BxCcK145dgN",
-	"Y7kOD98tjsxLvtHIQmdq/BT15C39IPBhaRRhVZuFldIPQjEashAw2oKCYh3KrGO/iFOw7EkFRS7fEjR6",
-	"bQKDY7+MZzCfzTZsv8nv1LiWgen8tsqAbwr1GiwGqr4/Y65LGf1CPS+Hr6yPV6/mff0MKS9Li3oNCkbw",
-	"8v9BMjYij8iGTP4ytZTE4UnrZy25e1sE9oyTQ7dOV94GEYTk/NWYIOtPe7LqB6p9vV0Zh5sESqurmUQg",
-	"uFpw3wbdUWas3ao75/DZJC/Ubd/v4Zu1fC4zzfEXs7Iw88bKSr2Yc4MfwWULbzVz/xEYjFeF1yIcXX0r",
-	"qmQ4J+Gps4P/U5qf4RO6n5W/cYP5b+gRs3MMGWlOGfClpTckkNsvqMFgceyxWgrDdAEujStJZBJMsULB",
-	"VWLZPC6yiVYrJj+uGOYT8ano2PjNyJoy/LOM/SBD9qa1BbnNY9dLK/LPTqCT4O+n1G7DmG9gBKigCmyV",
-	"7O06vVbKKLvYZN1vCExR8ubNbvXwqlu61o/dPcyIAO7EQ46Z+3cJWFAwSIADGrhje+GVsI10s3RX3DR7",
-	"cdVl0GDPLbnNHSvcdyL4Trzmaha18d2g0tgvdtHcAlG8CoKpUHGCtklF9qSQWtFeYgECaox2esH1VrVB",
-	"RB/sugvz6T7U5bc5eYc30rUrULmhrqNa/7J4949CRmiBVzIBGe81XqFvbkCr7s7bMOkM3v5AnGRFvElt",
-	"HSgs96AsJc2lxuu93Dwpeu0VHhztJjb/imtA1XARc6VEoa5osDNlsLAlVX4rcpNBtCGGNOfAmsZqVohC",
-	"nkYiSzUnjUksmpPnqTxTIlfFPNdcFLBq5avaB0Pfxx+Hw6t+vwv//Qz+8wX85wj+8wge7j4eDq/uP/72",
-	"t41ujVegPtwQyusGMv5N4PFWxF0ELwSKEKSAmzkIncbDu7GVmZGmSwTZzcN1Vroh7djMtnE/wOtNHeCY",
-	"mudp1ThXRU+cnJtLjUFZiK6LQa1jqRnvHIszYy7vholF1GPkCsPxRCrSZuMxgM9uKOJAnvYIwyFyk63g",
-	"B5iskdoCA37pPs/SMUz13KRjhUVKrcWSlLThkN4NxldETijTQuhchZkgou0MC/t7e75wFQSuiSe+yC1a",
-	"jR3GqsfYlLniEAbXxOmCAm3MPO+qhbJoSGzAX7KqsIImDi6QEfWyKgN9K4pPGQsZI7NhoDh7JvZEUA5+",
-	"u/xGnKYaVqrTE56p48vczGVaXcCCnQVAYLgrwPKDEyRS65djv3+XOybLfNnrHYu2HxzSfn9/9VtsFae6",
-	"FOKpgqRtM28+vKKNA4p40yJn8t88AXgVttXdvXUpS81AV4453IKI9s25gUXAqmsIbjC3qmRuBxjmoV3q",
-	"MWVvO7v3PEkLUeQyzfDKNZda5U0eIDMtGxSAqg/xZYUZiJjcKYPhvN+/O0ZbPv6TU7DLzeI3YNr8Qm+o",
-	"H5IriTww5bsVK5WjBaK6uKS1eKhpPDJDM73KeNo0JEZldlRn55RlPdRL92R0exy6pIn9bUmiufQmD6SZ",
-	"qc4emkv9yBbplEMut0wLKcysmwBtKG6jdKcBG8CgOfD4OXOEmEfijfhc7HV6TeAbp6neuGqm07i2fH20",
-	"sqimG+ONHCTu26icRjDEeveNm5ErfZt+lFNpVcbF4NdClkO/X7iXbwjhXIWqbI5ltxuib7NvLgxwbnAn",
-	"F0a8UWoGfGia0r2TUIwyXFAwJ6jDFEQOC7cgkbtoyyKSZE/cTjYDnXGqCpVvtMAv/dvwqUm3qe1DDcA3",
-	"TeMo8rkeOzG6dkLzuSpdIlSPRCAyz5SK00stdqN+v+9WBG5LULrxfZMlyhb8AqJewho3yxAXDnV+GzTQ",
-	"EKz+WnS5Cqqht3qWm+BXNaB8T3iVAYZLFgRlr8turp6R9wDWfy+Q/Cks9pZoCSui720DtZwwjpRzkCXq",
-	"IiWLTVuLn/7u78VupwZ043Lf/NHaFtfGqkytgNSDyv6Us0tN+0OrECXKWLWBxoErhrOFlQjx+MO+V+74",
-	"y/CIc9AKdJaZGcxrFUyOJ0qQcZETEVaUHWD2Xy4RBBAmhYBU0FoI1gDaOoKyLnzMaCVyPRJxPrLfzWWu",
-	"Ev4uM/g48NNyhPpUBb7Prt/aelKk6yfIeYxYAmbEU5TSm/yoEZe88vhjqQ0WAJMT7QH5VK04DyGROhGF",
-	"XUHkPyyGhKj4RGUwDqMmk3ScovqwIOmtHUuY4yn8Zwz/wSlDba540Y+pvhROmduAzADECooYAg/9RFSl",
-	"GtKMJimW880WYfiL21q/EbVg+qjllx69KcvJaBIYEJAaEEgrap21otaiv6E3o0p1JzyY6tMnwdCqvwSh",
-	"90s/nfhBV394apafPbHH5XyqPx0uPfli6cnR0pOHS09+t/Tk3/aRIwR33c+AsL1tZeBKIuiafIR55jiV",
-	"/4IQDFJX9bc98ZVNKOpSJeElPE0JvQ9ftp1VivsoFPKWX7gZrPpqo6k/1654cTPwGeRbIF5tW2KONB22",
-	"CA6+P1dbQ6Bti/Zel0maEB9xl6jyjn/XlbgJNmtj7b5WPmY98F6ApVOBznEeXN68cuZRJe823PzKXJtu",
-	"M6Tf8FTM52myHMouu5PD7uNvv//sbTf8c3+bP3f33jYafAM4pENWDxuiek9NUZjpaD5byrCCv04RR+lA",
-	"xIWZjUDtjAdhpkBdF4VUNJmfqdy/Bn+I1944cGlC3u/7huFzB8Dk8asNGbib2hfY1mtoyj1iZTt48pRb",
-	"rq4Og0XdGLsldEDSgon2714/i8RfHv3uGcCYI9JBVCZRePAVEpYx9XaoPZoGWiaNBtJJi0VPxEigLHg4",
-	"tZbQpRb48PUBv4O6bsylMysKsCt2r6YipxKCmLxxaTDgFf0yuhCT9GyeEz7/a0ZeLVQ+Rf6CY0RnR3pK",
-	"qILjdz/OsX+41+05dAC5e6Pxu38Sbfwba+1CR7sYcTyZqDGGSCQTmo3E5kHcSiZQnD9XAXtL9STVaaE8",
-	"JsMlyr/lAgpp35AZVBteeAr8nHBwOezPUJdKJzD4TJWJj1WorzZMA6ODhZULrADaE7HTUmKRYmF3OdQM",
-	"COH33x0SGUIcSm0vVU7hxZYWHnqLxKmyaaIYGA1asAhpM9SZPDUoCS4AYGM8hrYKBoLN1dk8kwVbfE9e",
-	"vBRjA/a1NLfYcYlo4ZNn0MjtEGuppxVQNp41bAiu5rnJTatPBWanWpzRaLxZyFB5PDa4IfjNE3e+wgCG",
-	"6z+n99wNc7MguZDyl2f95/82UpMJiN3fqGx8/tPf/KcTvCWK80uZFuqg6UxseZeHprtaZpn4XLx59+N8",
-	"NN6AMWwY0HW95c9HO2zQ2tToQo3GMs/Mdbv1DF49gjc9MOYNUvZ9JNcm9tGm1Qamtrnxga6fVyqfNvsL",
-	"+V68zmRVsyzfTigcv7tqI+sxtI4xlDJV8HlQc97ba5eXunZYgpMaRuZWD+Eau6/bDEcIjbJaydog4WBL",
-	"QcCZTcp8hBI4iM3zae6gx/B6D+WFBkGBvsC7ljkXSQ62KRmi/eTkxc6TR0di935/795gr797X7z7h/u9",
-	"z3qfMlQaSySpxfvJJPNxMdSosg8I7gMbh7ZsG/7uBOGdqFy02VQAQystB6Dkp1NlGVsYZQZStHaHmkR8",
-	"t7mlgaucOQMKuJt8fG6MVZjbEeOGxYOgKo8r5I2CoS3KhsOVvLamEJWCW4pCH+p6FGsQ0hSJyTzLFgKx",
-	"9rDUc7BcEOwIOb7B+7FoKzk+H2rC+a8E/EghLYol40JquM5zIXfaP/3df7n77sevO9BQrmZKFtLlzLUr",
-	"sHgOtGCoEbiZFFwFtwZ60tp25+q///sOwD5MI/Hn/yY+F1O2ITpQPEJYiUV73j6GV4//+7+PCCiLkARV",
-	"AjXC4SZgp3cmEUECBAZ5xutxzWVFzqai3e89uH/PvY1lzfeioX69yR2DVLuVMDTUm0lD4kMLQzcUKjZz",
-	"1gRZVMtxd40J3kQ4wZvCFmrmNXAk0ZJArVC6YHtKlabhRG6skm8d3OcIc9vE2gZJ6qE6yxXpL5NcqcRM",
-	"ATUHCKWMD1ovQq2Ns3PugBsX6ig2SHlYM4IVtvZaq01X3E0lEhedGtQEWy2ijEJ/7jJB1mwG626HBWUE",
-	"p7qbyVORK7q3ONsST/1pKm0knpy8ELu7d+/tdSKB4SnwFbm7D4RWKqEAntJ6wcZ7slHcWnghrW6zaNGM",
-	"KIb404hyMzaJioTqnfVEPD3beQrW9Tn/7x9ms+m3cS1IkANXVoQI/p+6/+dvv9+N7q6wCX0t8xTO+jO4",
-	"/7cUdL7BHO3dHfvHvZiggi64NTGZ63GIZeW9HScPBwKiLkU8M5cqj6Ohtu2rDtQZ6L/7cSqv2leRuBpN",
-	"U93543iXtg//xGbsVGZZBaqIPB9DXdHcD7gLEkzAYSPabNk1E/Kw7Oz2+r1+J+xe/FaMd9/9eNVYlaS/",
-	"afbT7oYvrgCdqxESB6iOATh1vNtIUV+XVtmaJQ/rl3PRGr0IigUSfCjbhSvp+mMzzyhn+VTx2ob2uZm0",
-	"IDlPqlBs66xxPLqX9CH/9Ri/p7F7AfbncDasLkRyk5TX9y0Jsom7Yw2aYZJOXFrPrGn/f/MQwcb6735s",
-	"TzCADoQ/xhLr7PA/trUbYEtNVTyD5aOI1FM5frPOOSFyY4qgeDyDum45ns1XcpNcjJAeN0j4A9mree3h",
-	"evvhNw9/oADQMmrUeXlZy3EgB7eAFLkpFmTTIt5acYsSvXTJM8eGWlyzsqgWWi0tl6/ZKHg5cNowc7w+",
-	"PdeR7TKqZPUIhVu6BrO07i7aMEsvJK6fr4I22x5cvYXmKI8p3A/8pqvIUQPEOFVjOadwBcoxbhBLg+iW",
-	"ixpn3/TULW16paHl6VwTNbR0oJdvSZD9U5nFWBsOFdN4bHSR6nmqz2LRPoKnYfJUOKLwcuSGiBL5+81v",
-	"Sd/kE99MhWCCJmvzukHm5E0IKZz25ppDdW+vcchWu9hia2+lIviKCjZeG7kMCwZsjL12TRWz53QNVz1P",
-	"kaDoatGPmsFNblS4tB/83xqB9Mb348+KzrAJ03cJ2sE2NxHSNwgreiR1kiabhGDXiAiqa6sVgIM4D+UA",
-	"S9mmuQL+EuPp1jbD+K6o2DY3MpVXjEFKWKkjdLqu0r7Jdur9tBSsX8iMgVbRmoitCSqkONcJWoNSK8Zu",
-	"tSq+KAJC1KYIVIetIiVN0Sg8LIQse8Q+7Jt0NiPlha5pAdf6gVDTGVh+S/iQRoys6Uie2lHTwvz5f/nh",
-	"N8ePfiirlYzfdMcyG8/J1OsN0EuCbdPotp2+R9i97lh841+sH4uyico8V1KGp7vIEzJvw+qT0ggG91RJ",
-	"W3QpLs8yAdkeWAeu/tjv3YvFT3/z/4C/Fn/ci/nnCroM4msNNRoFSMaoF97CMC22IrQPs6lKEylUIWTW",
-	"i8Rf9ob66Dw3U1mYs7wnvhD37++L9l6/v9cRe7v3Oj1nqHBjgw53d0D5f/dP5OCQQ71svwiME1dgkCDC",
-	"FnKcG2td/fnCiMyctfGvoT552PGlNeFxZRqdSKAHHudL3wN65qUWJw8PGAJTDnVJT2bi2AdGhSPFkdXa",
-	"20D4jEpbiSUZ6thTw8jgPtleHQaZV9/2XCfO74LulYCqXaSKt8DY+RTGJk8RQSLw7ag8Z+8PtrHyCAk5",
-	"NZgsYKyCW46KcWhTYTlTkysAhZZanMts0sSmeuIRLgfplgRHjol35aG0ItV+OUblYwjxzaxZgiyapFeK",
-	"glj8CgJYNxLnyExGUyXBsVOPmqVY1s5AfC3z9gLI5l/+9t0/vfvxh//vjz/8sb335//aicSf/ystC0a5",
-	"wnQyTXQjgGzAjafhdWRn9RoouAtDXe5fJNJC5aUTSgoHtS1yBTdFu1S63cL8+b9SNBDUc2GG7YK1EvS2",
-	"aaNpUgAK+BhjaerT5KM01O4s4UkuRwrEnRZE1o7ETx5WMbQ1IYkyf6B/8d97+L8L/3zBf9Nzi//LENyV",
-	"LdlQ2PZc7DkNwf/9RF+cfJcXf1V7tvT3XsNH/7b2bOnvpY8qDxjx2//9Eub1YvIMZxVy3hczL39vFZvm",
-	"I8w8RQvmCRGzE6eRT9Isa6r8S6qxBZTxDaBWHW7+26hV5TlNyRB1N0b1g6jS9dp7iVfnJgXI1y0RuBAn",
-	"qcqSEqCghDvgdfugC1ZDHlCX5PQm3t18HWilEoqFcxdfYRBBs/lyaZdhcsT93FfaFPwlRMKdqQRs5vgy",
-	"jaIKoC/iYNYDQW3TWvkCVMgMhhptPoKTR8XdgZBwB3KswaUpm4SLzWglEvTlCTMZavblUYTeA6gYlWNl",
-	"JzuT2sIUKEEW7yfYrfv9js8ZLbWhwIaxFzUR5TKheaznm2mc2yHvfhjM2LVfXg/ryS0vH0PMJRrPcwis",
-	"g5nQjE+VzFV+OC+aQo3hscnTP6FkNBBf4Luk+44x5dclGQvMzbWDSuYwxkeU5R/BlRRX0v7hDcwW59QU",
-	"vKVgO7A/CDK96rrZdilHlws94FagboVDKrWI86KYtd6+xcj/iVmeEvYPSZEqpzJhNsyIhsHjne9jGRoL",
-	"rllM6LFDLSs/c2aTyku8RCpjAve4Ezgr0cRyPFazQuqxGmqq0UfhsFbBKjl9kgr9UFORmGUGA5CxFnhY",
-	"o9viyZvrN9pcwq3x1SFHUWCTUlfy0Id6qD/55FEQXSGsXFhKb0cpt/fJJ+LQj0+ATmmmM6zyGMyFgp4w",
-	"DiQRY9j2PJW+cFvuo9OtgGPJCUaz+WmW2nOViLN5mkhEzCiuC6il8NswjgSesEAI8bXAxYZ6lquxShS2",
-	"6QymWvnCcQwTXA834VJxbFGlQOqhpg3lACNe5VLHodgfhnsAwcwHHuPq/sVfiCOjL5TGZ0PdpQoYdE0x",
-	"5mauhNXyDcRKQq+vUvfUw/i3Y1JQB8IbsWJg8ELI7BI3LE+LwoP0k5ipriTWD7TplZhwkVCZiSQ9Q6oV",
-	"oh3v9fc+7fbvdvt7r/qfDfr9Qb/fI8vTv4s7A/HS2OIsVydfPXWnZJqCRoVlA2wkrIFm6F7j4GoqIWDL",
-	"mgEQh+XgLhKLqrofGcZVTdKsUHkPWjqkz63SBWJmwKyUiF+x+//fxdAgQv+KMcKP+wWylKAo7vU+7Rzg",
-	"uohMyZmvcBDv3R3cezD4tB93AkgWHjNSkYfKGCD6iJbTVJ9BS3T8YLuwMsKpSRaR2O/3RfzdXOWLAWxi",
-	"TL/hgzL3pwfbXZrULAF00zKd453ZBlbjsqwjwk+wHdx78IcJ4ve2J44NAZ/A+Z3NlE66qGaWlSRd2Dxw",
-	"DtgRzEbww1cqoVbJmkGOLr5CrYjTJN6JrfouJkgR+CSRhTwlt4KZWSELaGvvj/fuiq7YhZ3nbR9nqdJF",
-	"JP5SXsgT5LAi1VTtKOItxxh63nJckhdaIekjk0wTJQcIw41g5ZI3PbUiRukgPmDXuCsAgpYbXEUYErxX",
-	"Onbcy9YARwDRMLQGc6PezOib1kzGuqCFJMgSzyuVLnJkySUQeASEq1RCX3XEOe5KOSRZxDjV57jedJop",
-	"fEk8efToUff+vX1BpibbI47AVInVQ8Vz+VyUIU8LpmgK08Qt8rUyMW0URk3BAvhjJTrAsesIREpRNZXB",
-	"iSmzLHJjig6OHkxdsbOASDyPqVYZzoglKkHyhDs1gi8cOikWUlAbxK2BQHEr7uBpP/aptdwULNI4M1Zh",
-	"TaBLlWVIaGhJIFsGrN+YaldgrAT25qgcr8scRuvg75EnJ2ZM17pfM5IFTtUBU68V9tzMqSECEUrPtMmV",
-	"mwyC0ScGv4VZRpzBm8lC5QIuYLx3ZZLwF7T1yNzNJJAsbOTThCO+s2zkrFN441OFbVgJpKSSdwzEriiM",
-	"+HRfHJ4cPXkiMlUUKrcRs3NikD0QpUbwnwH8pxtHNCWZo5rExgf6FOgLvxVtkmhFXLIqsCm81ikW2oeW",
-	"GSsNWgvg0mSuePsTd9eBk8sO9aHIUlswNUotznJz6SmNYILa8e8evRI7F7s7xP1gwO4J39hxZ6hTS/uK",
-	"3Hcmz2DlwGiUalQ2LuViAIudE1UOWLGJRRveFTb9kzoggRIHxFk9gT6I02N1o4PHDBZyPM+tyTmSdwYM",
-	"wcwtdg/iqFZXxYhfqUCY0VWRW2SW8HYnSB7Dwj102VkHEIQv45sHNAs6EYzRU6ipjardlZv1XF0VR/SQ",
-	"A4XPpR1NTa5ivNvde19K+wwednri90rN3Ep5euC5fl7p5fI8zZACy0YFgoXMsZwvrqXLc0f8kDjYyA4d",
-	"Qfw8aHWAtniwj+L6Z9LN3LHSdlzZexZtkIL5SKORzMJCGzEzWUZyJPSBJ+7Q/ZxaYWbyO0geLhPs45fy",
-	"TLkVO0DqKc6ZvNKxclUgiIPbucKce/wXadyEiMUbGEEf+/0+0j0SPZG1DyFJcwZYxBsF68Kj1h6EheM8",
-	"4SLhaJOhrjhWSV4vhfUoUBpsh/LILs9NpiJ/svB84JC+qkoi0FipUoWccJzJXIUnmfYV5BsnAhFMGUs7",
-	"S8hS3lJOPNNzAlAalS54NsTdUHcbatI3YLdjkZt5odgKsoWiechYU4jLqNDwMNSuWCD1M4CB/EB/iB9w",
-	"C38g4cKKH1g0+WGof+h2u5X/Dx+F+qv4IeTg8CnKbMT8mWFH1SqgpfEcghV2MDThB1Jd8FveRMF9hdqx",
-	"+EE8ffLshISznCnhh4p+19aGZBuSgjp+SE6MZN0woB0bhS1EPOySBsuiLHgUo7AykIalG6vgwlpO1YgY",
-	"QTzVWADUiWo0v6qyL34AldQWcjLBbYCHlsq3UDGnqJSyauuK1V8C2cVuMnPRnikGrWOlWubjc7CPXb8K",
-	"N50xWTPED1WsRBguCs24ezDYub2mC9QHSPVE4NJKC9DZUGOyb24yxSTtVHc5RtCOgZBlsXQvj8OyeeB3",
-	"puGhTgsqLIyGVKTCygdRJTQuWGPfEi9CWgw1LHJ6gU3pim3Ft+gOAYM4ohG0J17SPNukkUPB0kQWkvOr",
-	"eDkYXwkjxHmpEZ3EcwUHRBge3KHmErIetinNydJT4lCK9joAxE7Pr3fJSjPk/biMyHVI5oFRkQFFcwGh",
-	"Qmmg6KFuMGYNlqAyP/kEpFuj1SefsC9tih7HZEoOezdvlI8yrGrvcTjJ+5gTTy5AXcxSZb0kDW87M06m",
-	"CsVJzC9mSh++fCKcbdAVCnF57ZL5dTlzUBRKs+FA/OHbeKjbwUqgvmkKtpCg0qtyNWgy57mKghjKkNoC",
-	"lvrQQXtEYiozsH/AkXR6BrqZL8wbFWBd7vd3D0hNSpMAMtPMgR7dMmGP9Pbdnoh3zpXMivM/gfi5A1S1",
-	"oH9OVZGnY8uWhx0zU1rO0t5CTrN4qNGUpA130o7dquEqdNwV+AhdrO6+Q4cr7qJGw86D/Xv3xSw3p5ma",
-	"gr40I09CavQOP/3tX1uj44jiSuRQxy/pufP4pZqmmoIfJRIx9mBjNiuRGXUyUYgpSpoJysqSFE4wZNBT",
-	"OEgwok8f9HfpN4SVQfLnSpFk9YBsBxTrdvwNt7O3U3Gcx6IdD1vDlt9SFFHw+84B9X508rUYqyzD87uT",
-	"pVrZHRYr8H8U/zWGPCd+BHuiY2xwt3sqrUrE7HxhsaQstMCJhkKcK5koXGZ8vNtxORrc0f0dj/vEwykl",
-	"RBgPde2ANZfFHdccSUOkbEAqoSzOB2lCCldMgxg8SdR0Zgqlx4vu7xUlBlJQDuvm09Qy4BLKhuHSY0Nk",
-	"P02ti5fJSZdjjKl4h0ntmTsewi50Ia8icZmjz34xY5AcVgYC7BaZKxDyDoh4HJQsuIqzrMutnYKyliv5",
-	"BtMf55kPP3Iic9vVjisq8A5OvBxqOHMRgcPSsaU3QOjNFUqbablG4o1aoP1hf28PePm9fp+s0cCwh3rY",
-	"8ohaSOjDlr93YlZqRmnCZeooCPYMBlKY0DqQGSDh5yxBpc6UVNqYsKHAHEhM31nIyWDhpM74r7psDuk+",
-	"geQVKcLlM5pNmS6oHI0NyLLfIK4Ps4ljWXDAteXrhS8DNI+ezsdvFLJgHpstqwICniqME13BQhbiXh9x",
-	"LtDoeVDiBmPsBhkMHferSZ1nqrDiHmcGA1Bzp+dmzYAYhQmWhy0JAaeNhJ2Px8qimoP7E7G2TcXCHbzs",
-	"d3NTSHct8mFlM4ur0f7o1WOR5HJSDDX+TzdVxaQLLh05S7u5LBQuVpe+tt3+p6JN4VFlOAZL54gbMtQx",
-	"LPFTMgwwx+Mw6eJcWQKJdjgrsG3WG4Yu00RlCxQ3OoOwoS431ya0HdijOxbtDZAQXL52rKYy1RSijKxw",
-	"qHkRLXqpI1JCgVbGZq4LldS/twq6oT21Yq6LNOOQHaKM1LKNHdwxbAoov3+J/iTkyoQaDE/xn+rg8nN6",
-	"xm07ha431C8l+6jwdfwXkwEeT64rHB+rIl90DycFJOVh+i+Gq5WoeXaonYpJK817RofUUYx/2xnZSGKg",
-	"WdL3jPQiHeurHLwOciqynKKoBAYiZ3LpiUO/5FUc0zQQHSibGtcfVxDPgzaaxCNaBjy5M5XDpQ3jHohT",
-	"dZ7qRGjBYQBwXoly0H1BAN+aT1VauANPlkHg+WdKc2DQ2CTKnTiy+gul59OS1dQiZDiTT3OdMeyJ7MMS",
-	"PJI6sB2KtpOWDRwg6OlMkfjPYk2Xx2HyDjBe/9dQV43N2E5asLlUTOWM0wmzuZd8WehLA7cHjMjjOvqo",
-	"DRtGHf6Hvxexi+uB+3R356p86p5AnMNP/+Hvhxof7tHTxXIL/5Z/KZ+6J3/cC57toSua4yf893vxgY+f",
-	"2p9l/MtjM89fYm7nvfJZeqFePo0PSuso4aTFu909y+9ApvjuHho3d7t3K0/v4tO96rt79O5xd9/GQ+0f",
-	"H+/j4/3ubvjy/i413L8K2+1fxQfE520NwZvf0fabRsc8t0GPjuFJtKS80/IjDp6lArzxgQ/jmCnWc+N/",
-	"/s/c2rN5VqSzDCqtxv/8Iz98mF6kiYpZ87hMcyYhFI7Jn4mnl44BlSbGs/MYQZ6oHsfcqorHAE6HdWZP",
-	"C7tTwOvQ8Utv+qAnQ82zdC/QX48ulC6OoGF4hkA0cFLjzmDJBXGO/nwgeAfU5HwzpXA0llqoKYWKku6B",
-	"OliFQ9jLtAAp/ULhWVNTuLQrbgV8TSYJHzJsAtGcpbdgn+ZSj8+9txkzbjJzNsRklFyOC04Vwht2t7fX",
-	"61NZ/YD50G3XQfXglUMGFbFkuJZ8AsIN/VFKQbTtnYGIMSs5FhgPIFgQ56q9gYQIM0F+5WIOY+yGOVkZ",
-	"BCEoBgIaoRZjiIrOJ6PcJpDzBWPBy0glTC6RKCWiTmXvgkaogRgKLogAMA9a54TbmHTPiCMl4NvKEnDu",
-	"rePIbiEYzcZiqClLzBiVpt1aAIkPhFaXjlVCB1OFrsGD2iUgrFIW30X+72AtYWfiKg6oW/AKmK2zEjeB",
-	"2cJQQjxb2YRmW51E4+jIG1kdIo3wCwgcs75izqKLAhkalRJB2r/0TmtAYIP3kTDwdcGBCY5iGP/EVS8N",
-	"iy7F1KirSu3TbuLv5lIX4b5jHyOKd3NhEBCKmmXmO1bv6RU7Py34d3Dr8GoRVFzsBu0XHQc8gvlVGmFI",
-	"lhQVd3hOXlcOqCMnbQUX0PmrwlUnWqGoRpl5SqF1pzVzkoxbB3R0+9onGMcCd7kWT46+FiYXR0dfU/xA",
-	"uL4roYqFNpdslE+LKoUBmafoJYEecbUphobIXeTyMhDo3DCBt7mDxatQRlis1yK9xcrNrs3x0Oxw6LDv",
-	"J59rlwAzQ+hCAGMPLPEhUVHs5UymcP6grXv9PsXToA4Or4CVQmbpGzWAlkp453/+z+Iz57JlJ6STLtvs",
-	"Piq3UTokTbRIdnqOv0LjmVzAyuA5hLF77lluPFlAGtCqoZfmosCUpeHgHMzlHRjlXxNFRjg7ZGuVDQWw",
-	"8oD6iNe8fHHCzti5tjtjewE6BEVaHM/1kb1w9yLMBcYva04mCj9xvL4dF+qqoHZAE43qwTLWlybu9Gq9",
-	"x6VjnmJUg7akZWrHUW+jsZaMvK7UkRGnSYdrUs2aFS70wW6ovlLY47AVGgJanQN3e9R1KhGoVFOcdqNc",
-	"hALRIJR+SMzpIVRmTO5lF2mwJCOJmEDum76pSE+0VqUA1cMhoPlvWa4iddldgjgFY8lKggcHdzJC7sPm",
-	"Wo4gG4hYnpoLNZJ2MZ0VhsRXKI5zGT5ytG3mhU0TNaJCDrxHjoWPgBbOVQZMU+XORjMvnPfXBYwgJX6T",
-	"5qoLtnJZpKeZWroPUVHEa5CsbXxFQTtmwiKsFW0vFCxrfZ2AckPN71w2aH1gr0PDJom7qHKdywRVVbzz",
-	"TCFmuaLYcPxEtH9n3FBdtwwUFwbHOKkDGhkbbQupC2rAWTwfo5TjBXqcCQj6LswT2Gj8CAyVccnofPup",
-	"Fc7FcLe32+t7Ln631+/d7fTEc7BhINgdLOSA7k2IGED3mtcPYvr1D68iMcSUvGHrW7hpy1d9FV0KcQxJ",
-	"00VyjNAyhVI+CEBP9GOTj1Uvk7YYhQ7HGCNCYqPVi8lA/OF7CAd/G4nvaQyu/7ff+jXA2+OEja3AaqhA",
-	"ALSSIb+2bF3QTlWiqnBwz9DZuNvrw8pORewmNMCwi5jOB1C1iLGOlbvyJUZLQVoBfAFqvjVTuPzjeupx",
-	"jBZewQb9OcXOqmwi2kuvDkQfPPvSVqa019/rd3f3gDSJt/fEc8Pahbv/QdalG4Qsrt4fERhhfRJaYapk",
-	"eOCR3pBr45zBTXFOl0usrpApxRyJhgGlC/J+1gQoDAQYyyxzgUrOdwb6yu8evYKm/e32fZq8jemNJcuo",
-	"iwcKtOAD77tk7unsKzR41L0PvIv1Gi8zpXmJJvxDHNBy53KVDxaaWfJIcyOVSdH+1KKtdr6nf4xgMQYs",
-	"2OAwEUSaBgiEdlkTEAIn68735R9vd4KQg51TWYzP44GwsEYy8/IUSTKhGBWRMctFl8OWVCMRsHtSc7tl",
-	"DKYtDYCB2B5Ge0IhjJTKaPNN4dZ8hAZreAEP6YXMwn+PaLfhEV+DhAruwFKgKQ8UQ9l7iOwY018gnDdI",
-	"9yzUO+mVpSjQibyfeuLcLu0NJGSO7yTJlqKvi8t0rDqkcztJDS8PCulD2bLtHGP7O9yDCyy3tRtilptp",
-	"alVSqX0rxazuKkwU3DYJzIY4cMVZ6Ds5cGEFd2zND+DGm+YkIyJZezERaiO6nCsagauSLAuRpFZS9pFe",
-	"Tk1mRWzqEG60s1kSvAzdilNjXUk8kq1eL4HEs6RVoryu211xWJIHnNjAFkL0GgfoeSBi10BtCZAfh46d",
-	"AxKfyiEu0IFWRr6IXNQMNUuiLzSRqDHiGCFVdQ5cZjcecpdBICeEJSkL0a7IgMuiHgceYivLCOrtJcmT",
-	"rlMvdq+eOOEYxgPApHdYpJF4E4nXjD8K7TRAkDLrgAUK4F7PZa4i7yss9425LmGLo9IRjBdZUS+AsI5L",
-	"1HopLEEUImw1NIPQ1azXthkUeLfj7mscFG0fuRMef/nkmG55OuMMeF+uDWC5spkqtWZvt/+g3w2Wq4wn",
-	"WTEtui7xYM5yVTDaHrz35dP74mKPOudo2NcNjWAmthDPXz0SVp1R5JujDCVefPFXJLRiSAPhLjnwfcnJ",
-	"ylczKtUCKeMGk6V8wChd4sxBWSBZoGdQJUJyek8OTeTK4izbCeVRQ1KEjULnAoZxpXj1xcAP9Z0CblC4",
-	"QLJMOGswHu0h1f+E2IS21OxTpzw5xBM6kxduNCT1zGRusYILToBKX4q2Yx4BF3WGDXgPWM/Rydfkvkef",
-	"MrBdlGIw2FQXTqpCX4sLjCaBxQecS+04dhDUwKlZ2Cgc5SmaCKZT6WItQIwE0GM5twrtwc0WYBS/Swuf",
-	"Ns4knaiZwhhWozncZ6GKzqBJWiC+hBGnIoixxcD4mDxqlz6OGgVJo8tkIfgswWurJ+px4Mw/bBB7jMR2",
-	"CyGteB8hsaHiVzEgkQLm0pe2zqdyRjGnjGH0MBmidKpZyfOZKqeLco0oy8WlAnkxsRb4uCZO0CU8hV/c",
-	"oRwUcP2R/UPq0oLQCfouxSOWqaF7kSZ0yaF4NTM2LYNGgjBnlw4k2shJvCirNMppHk3P5RLxIkBKZi9L",
-	"x0qzneBwBgJPd6/Xj1xgPIhONuUUwKdPjh49P3lEOZ/8IeR0UlnfVvl5K2rN84zzP+1gZ+fy8rIn8eee",
-	"yc92+Fu7wy3iN5BAnBaZqqaFUjUhS+miuz1+kf2lrUELlViqC3SOGbQukAz+zVVpapnrTNZ7UCMS4uvp",
-	"AJEvmVxfKRRWfo5mVxdcBvnqnsqfJK1B63eq+JK7qkE07fUR/nRsdMHlRcOgsr/mTGPiiddlN1MXlENb",
-	"mwcOE1bjXr+/qhk/rp0nbKbEu6KSftwa/OFbhL+ZSgCRbj0FoVUhAGkhzxADws/ctr6FT11Y3spFfplj",
-	"5peaW6r5r64c9QrKoKyv7wG9okRaUIQMlYrRqrg0+Rs2xzplvcjnlvHHl/bkGY/s2j1B2+Usk2ltN+op",
-	"3ksLzz18iKUPlm3q57FyE8JgyJU7AXKOs/h4HSKwAYCQcDpPQQtGhIENyJ6b247s3SC3WOhw6Hd7u374",
-	"kfi3h8+efoj1fxVqWuuWniJUN+QxSlfYr79YfeknXBIMBp7nOU7wXv/uUJe4XPVdIZdtzAFkkrJQ44Cd",
-	"+b5SzIvHywpTTYWD9BxwCLjMmRQSh2xCiZ9ukDiSdiXEqFNGP5UtW1RMDbrXyQgXOOGHWpsiHSvLUDcQ",
-	"SIB6OZCHjYPobRiUD+OJRDoRUi8ihvIhZTSTZyvO/jHtygdkx8fo2FHWNtErdi8KQ+t5Y/qEr+5e/9UJ",
-	"Le1rLS9kihbKtaRdjnwNWV/s7qAtayVhf/IJQksMPvlkKSQFzNAUDY8i7yG0A2K1jUATV7agLLtIyIK0",
-	"e+9yBQ8h6H2UaxALqnMLQbAYyeRQAZI0GWCDqHJScmpQ+h4lK07PJkKmVCUdvGMute1RKY88GQEDisvi",
-	"HnkCcavcO1vC4OlQt8nyjhOO/bFNk04IEgDyqY9xxWx3A6YUrfImaj3B9BdcpLAoNGzL9y24klpoc2lF",
-	"TrqiGbSiDQmVUVHeRs2tBStQaTKAP/l0vwHuZG1rabKqrb1+f+PGkCrqDTWi0Ow2oNB8+wEPP+7WU7Py",
-	"rgLqw1O/v8mp/0ImDhUHP9m9/pPXWnJmnkroow34xGOTn6ZJohAjZ3/vwfVfvDLmmdQLHp39hfiY51x0",
-	"VPBghYb200V48sH9gFQYsDfK1QLsnaVMF1/P1PEvRHScprpkhPTzRpywiqtzHWekqL0aUzR54vAgKtog",
-	"Jslz6gibh7Q4XQw1gEUEP/bEY05p5kpgpCsfPn94IGKQ7FBYSDW7l4jrFSYeau9yijDgHG0OFX1UQMKu",
-	"5YrgZe7S2MOpiLZVChIDKOu8JXxkl18wMuUGwlVngEikoiGxe6irqdbSlongjVncB87n5XOZh7qaME2l",
-	"i3HOlabBU9cr85UR+QK7QNFrqLmDMsl4iY/DlGlDN2PjpV9mY1YeggGvYppsz77VNsnUcatN+grBmzVZ",
-	"qfO8qs2y2PBmjfp6y9Bg9Uw/knmWKltUD0BUHhss4tQwBjhglQFsAna93P9TWTT0rq6u6b0wt9D3S4fT",
-	"sKqX5XuZIzdbg3v9ACpu79o7OmreoPL07JQQAa0PeqMjgcERbrrSAR4H7apmwnmpHy/3W7/cj6jESWrB",
-	"xhjc3Xz7rrq7wxvXVbm47irH8IIPcJ9jvg1lr00gFOMJeV48PhuVLfY3l9JnKQMvJQS0S09GbOfkeNXU",
-	"Mp5DrlxLK7ReXMLl2+eaI0YRNw9/hvO1SlzGVf21H6n+/vVfPDfFYyyY8q/0DB7SVpSuWkQ55OQKDNOl",
-	"qokf/nTe2PqwlENTO6MucRQ0BBepwmCnJcSGU+wRY8FkiRfPOUMm1D5SGwLArTuZK3T8X8PxvE6hxWWy",
-	"H4/or+CIBqRXZowEJ5IP16a6bu2ErjmRJQgMTGNm7HtZBamQk+W0FXyXMqcLj8oeBFa5el8eHd/k6RnW",
-	"fwnyGfgmdfjHEQQFEBwF+JJAn3bNjMwEwAbgG9+Qv2ZdGScMFSzAw59qJ5f0xDG3XhsGLk5CMP0L/xdo",
-	"lBiO5YBFOTSq7YIqsa2hxroNGPJgtPLm8ALCsxlcAevZoDbAzjM0E3SYH/nlYTSCeEa2gJEPUaQOOfLR",
-	"TIJQL1YYh5oCqXyIoY/2KyN13GyDytwyV8JFb2NaqZ3PVG4VTh5NYW5o4MW19WYqIE28xgPwU3CNxcrv",
-	"lHCAvZnMoeC4cbCixDEx4Pon14RE6wJlfyk2XdieeMGQM87RwoyfTtS5TDVmC57y+CHHZb//IKKEUibt",
-	"UWpH/DXDPhxjtml7f2+P455OOeGYJbwSEMRfsNDegQfjHWoa/pOjL8Wz3T7U4diDiqxFvY4z4OpyBTi4",
-	"ljgiBBEdRkxV8YDGQBSHqJS2jA7zJCY4151Lh/DHFqE4YqZjO/LwnSOtLgEepxCZktYZx/EbRr/kcyAz",
-	"eLygdiBd0P3iU77igXcA7AESeb3seFmmW5TNwinIMtGuTcINATPGrWDgc9dUh0eRairlYkcA9xBOo4L+",
-	"HLwY0/IROC/vEoSbRG6LOi73k0dAPYH5bITI6iOlEzvSSiUjCmyKBzwZGG6FDcACwIcuvBBgdTlOBIZ3",
-	"np6dw9+0n1rm6OIoMMFLnymYC34NHR5wJqxwOG40Fh5BhPFyWFpalfF20P3l+YLCqSgeHuElY/6qDOjB",
-	"Re40STrE1B+5i2JrWSfAZ/m9gsKIW0pHeEV/YZLFBoIRB73RXZbqggbIRblaT+/i3UifqdZgjzogcPiW",
-	"D3gVe7BsT+9S+humdblsDgB34fsJeEoux3AXWTUr5lMUpDaTzPxienmqijVf5HP1dkky3P15FLewDCdn",
-	"T0F7T814RdW2l7I4dwfdfRyJuCZqYKHm6hSjdeEC/4NJpf0NpNIjoydZSsUV9nc3GNNLuciMTF4Z81Tm",
-	"Z4q+u7fJAtj5jKLmn6kkla8WM/p4b2+TjzmaCgTZR7oAb/S/Urn7Ed1AYRkmzdWCIiGdHOtoOpDHvxu/",
-	"n9+JhO9ZZoreTJ9tpBHfwGqF4N+ZwVDYGDuzF2cxz+zl89+JdCrP1Drt9mVmipfPf/ch9Vscww6vQoOZ",
-	"+zTVkmyHmwQU4Sw/arS/+MkCwglU2UgQFX1wC5Oj8g9wpE7KJHcvufqyPFOZv0FQKS4jgmmnNHPOkJmk",
-	"CaVLnmJeE4Wy58qmyVxCkrxWmcBMW1Kx8Fj4TAVJcZYYQTvUlNPv2vf1TwL8T2idPWfXHe+Tr3+G420v",
-	"zn57daMIwY8H+ld6oE++/nkOdJnduJmFaq2h+MlSIR+YU4hk4UoDBBWEeMKonVKkoiwVWsIbpdNcnnLh",
-	"shpBg4vL53GpcKJC6NRTyMyugyX2RJkpxRhM9ZpAUi9c4RzOUadSL0WEKUIMTgsNgpMdFoOZwoGzs+D2",
-	"DzXnKIGuSazJ5WBSthHmwlByeAbsiBP/KyUZVTLUpLSanBiZkORa6InQBUHAcFiPsay0xP0gMOVQ7/cf",
-	"rFZEg0V5T751Q8Wy3M3WoN97cC9qMdHgCFIY6Tfdfn9/rxqp+od+r793L4L/7t//Fj30nCaLBdfK7+4u",
-	"f7d79+63b7/dWL1cyrDbTL+8Pc9DOADqYpUHng2TMw/yHlEUM1c/yROV91ofVcGPquAHj1QIc5gxytgV",
-	"dwtDDgPes+FVt+Zqq6Ds34b75RgUVxu4PBmBxHkFOIzBC60EI+5jGyA2r/QHEXruaqcNA4uwrEvV0Nms",
-	"CRZ1rQli5SzVnBYM+4L1sMlASgix3mwEJDiAGllUzSKDPGiu9UKJ40qPlUtvZZsotF0WBmo/OXmx8+TR",
-	"kdi939+7N9Tv/uF+b3e3t0f+FJHk6aTg5GHKwLQusJB9FK4wXYDcj2CkJIQn5WqWSybaJYBOzO8BbvgJ",
-	"vIGG1XOCelq6zI795qtfcYTHcYVEV0V64MamFkyGHwX1X5qRBYTlhHWiXBIEiQPIS88Fbjmi2rM2kye9",
-	"WTL5ANEerzzePXUTqCVs2nr4mAuHoNKia0WgBk7uZmufs1iX+nPksxGjwDaISc7IFJz+HzGEJ7RT1kn2",
-	"LLOsrX5H2LEh6ITv5lRj00GaEkfCb2whi9QW6ThiRGho15o51oXBJ2SghJxJdDGjvL2qKk7klRls3DtV",
-	"cc5YetPJ/S41zFeHEW0tpyriPG1KznYuq0ye3rHiT0arCNZRAp9nu0eljJI1k+ISU8R1UufVkcNBKBCS",
-	"7OTLwy7U8WU1CmwprmQg12Dx7nsPjlA66XWRr43QOUYiefnw8c/FYpnq39uWyYfoI0/9xXnqq0oRorAM",
-	"8ftmpWwjLeIntyAmPjMXaFIM7oZ6bIkojIgR8OZCMQPOFTlCY2KBNHHrsIiYhZIz1fNVLIeU6jpz6IlD",
-	"bBp5mBsHlU9g+wSmvkK4SMzOblm6rCEUw1sSjFaE/hNYQRB2QWRGn6l8eWaY7PGgLNgEDyYp1kBqu5pF",
-	"2DyVNi/LweYG7Dklj8xVMc91uZCFoZgdddmBiCL6MQg/RHgvwINADm35KkstF2cjUD6u3+CKo7ppSi0w",
-	"bzE3Oh2XY4CQF1hBvs4ItN//CuYbhclHcAcSi3dvuqxln8GLNZqoga4j3C5lYnbd5CFXooIRi++HdXxJ",
-	"dM6UGLZcFid/O2wNhJ2Pz10NKLwZmMBghI68hho3AStHUwLYHRteTB4PLTwb5ZQ7zbI2rObNxOxfKHrB",
-	"HanWoMWr1KqEKpDbgG7zSrFZlTjYXBQsqgXEIcRoizAFWrdfyIa0MkaBRqWSj3ahj3ahnyE0l05fyaLe",
-	"Pzp3zSVfMrIPFiUf8FJ3y2mqxlMY0ymDGKdSpxNlC64SiuIPo91GQ43p8KAdVNUCfIS6gWDV4IA0lnOF",
-	"hf5c2US6HIaaoj/POdWf9QC6xbEAOb7WE18Av1O2UhmRb28URpZvZ4ZVDOoGlr8YVy2QTV0cV4fpoeV9",
-	"3a7iCMT+dcbj41ZYleJQy6HmHcDP8Ze4szax9KTc8V+lBciPb1Ue3avK4n7UVn4FGfUBqTclE9yOihK9",
-	"tx5y2CzUDkLYD4BYtVBOLiWtYiatRfw/lGpEWRkmkIlj15/TUcrarKEseeA0HAm1JmVmjRNIbcntQwke",
-	"6mKR+OnFfEf8Khc+fN1bRYBJIWay6x2a/U6yOK1yRrl0sv7SL7pkbMRypnNbCC5qGKwRaU6Etg97ohJv",
-	"wuasdxLMS4ZH0eyEY9LlVvycDrmuoVtqiCzODIqSJh/qJMVbPRFyjDHDXOTzoCxACnobUh985arOwKu4",
-	"69+QkjI/heWt8FVWM4lr0oRpIX11kvQ0zdICYP8rLJ3C3RuYuqjzdIfwa4uhhs8t52c0sPJSO/EsXYZ7",
-	"5Bo4EFqleLk59MfwliLPOyxq0DofyaEu1dXCd4f62jlijfM3jDMNg+CC6I3ucTj2//p1HDzq8KTnTk0r",
-	"ajEd+BdlhnMk+mwNWlwOpntucqu6p7IoVL7o3g9VJhyx4wPJQVgIaZyniPEIyvEW2pFns79QELfv/9pb",
-	"+aOm9FFT+nnEjveXNtYoRxWs1g8Q4En6UdhLmVLcEA+GWD5F3MSKQVb+ujLaX6VsHw5xnXhfWfiPEv4v",
-	"f9S+bnT4NUv7a1IVNozK3ETSDypgrj1n4klZxgKF1aFu9l46+D+saEElpkFwDTvqHIivDuGLyQS094V3",
-	"B2sszWfnjLh1DqJkuzYoTu5EkMxKhiJYU8tQD5YbsdIf1MMry3lFQpuhdjF8nWqIS8qlsOJq1faBx+cc",
-	"6t1+/92PE6DCHW2m6MqEJn7zUOAvbfxJ/PR3fy/45457DzFIQPpRhFM+1D/85uEP4qf/+L/WUh5LGacX",
-	"LvKoMJnK4THWeYxIgRhqF5n67h/3+uI3Lq1WvD4Rj14eipNvup/tfyqeYevis36//zD0hFX38WA5u5WG",
-	"hUU4czTmuCRkNJvI8ThXSUrWJnzssmEdRsNhWVQRl1YbkRvv3ncOINA9yLVy2JhuXE009lJ6pXiMzzse",
-	"alkA8ZLXGZG+6/nHlcZNzhlDgWcNUY4vQRk7qKUts0JguTrXUrIz3TlQXTAIy2pKva6wZxdRRUNIC/pA",
-	"2aEmSHbS2UC/pMxgmjGY/kibDRuLhhpekg7rE/fFpbeSNsNViWSucE5FLrWlTGAXkRZCwz9gR5HwfiJo",
-	"0Zf1J6cc51uyisTndqRNMXK/Yc0knmGZmo4+Iy2Wl6psJEzuLpuoRSXzu4AwN0khCxw8XFgpq7LZQbCY",
-	"I6MglR/6rJw53NVRcGCAT+7IIl6Tcxuy+X8tSl0AbtYatPb6e592+3e7/b1Xu/1BH/7fv4ObJuSKGP78",
-	"JtWkyOki1XPQ9SKftnt09HV3iuijtbDo/f6DzYOiw8X8hTS2cAi0w8kmIpdHrjHzAjjiR3Xuozr3s8QR",
-	"op21ObpMtJ8cfb1zdPR1Z0NR04tt16f/rKx0Rt/tMAv/QFmzQSAJnnTCmsEaQdX8Ol/ptuAiICw/DbU2",
-	"l52BkFPDN50LefA3fEE5MniB4Le+qD/Pbaix2tUGlxsJnvCyux0puI7wZ0sTY8W8iA9RgiTGEoCByUuZ",
-	"Ft67hnEiKKCx+GZViERDExuleoSlSGKQ0jRaustQj3IS1tnqTZaoXBiteuIbF4hSaR+gRegWhqLg52ae",
-	"Uzm4UNJLLbfDZXxk4XYCJHONL/hadmK/v+8K+2CET64wtJtqyLjiSeuiCLl65fbXsCea1vXorqvhEbaB",
-	"Zl2+TaaGolqPHx+Ju3fvPjjAOCTcXHlqlS5WoYLKYnvs0Q+OOOi2Yh3wYLn1H80Vv4rwyequwFGVTJa3",
-	"aqu47gq53XTSQxsU6FyRtRpHpMiFxsNyHSbgUmu4XGJXwXHpeoGji6Wsh9rX9NrwxgSlxxrmleLpk2cn",
-	"oJwquj4KALNxw0tsY0Lqc+NecONHd9T+UPuYd3K4rNZpSn74PomcIVd9L22FWe+gpdMil8iElxSX3VJx",
-	"ac70vNeQsfnZNgmbTYvyMXXzo6byUVPZ5Hr5ai5B/lms4bO3msO5eSXmW7hitisATfXi69WfEYc6qP3M",
-	"IIKYOYNWbfciRsd/R8uZNnm9hjq8uZq0IspRataM4OrqRBSyV5y7IlQcOQPjK2eCbAUH2MBV3NU01MHd",
-	"RBkz9FpquW2VcKaYySnIogCkwYEoKz0PdWn+a7zbnMkSJoYDAtOeK7Bsd4bzfv/uWOP/qKC4M6tlvMiV",
-	"Ze2JQ4ZI3I36UC7T5WkRDuJ2d+cXSGe/8P1JfTZdpttemPVW0qVWVqAmNDTZ39+DNr9dd6W/1xWNa/+L",
-	"39M8ivWXde1kuRO66oR9vLc/3ts/3729dF8F906aO/PZB7nLueDvZrbEio97e8tiRvVfQtjrMCkLI0q0",
-	"nKpVESXPeKwfkKtQF+tiQXjBPtZKuf1Mkywr60/XaCXM0ud3NjO132KIR2j3QC830KoYM+S7p+rdnnhp",
-	"bEEVzQiiGv6NL3Nt+sVQl5geJThB/Xy4psmcfRX80t7r7wL+s8KKTrn/AeNtF1Hgpx5z2GeZrFoDMBlq",
-	"RjCBsZVDd1XIi+Vze8e6zHXiU0PtBspwH9i9yw4Fj/IeFsB8dZ4rS7JupiaFwPTVyVAHYRqxKOQbFdSR",
-	"uWM9jHhYd9VHQthzc4lTyDIEIYFoAbrZGZs+V2Ku0+/mtPYgYDpLO8SAr/E9P3Plwd7P63xrwiUbpEvJ",
-	"cq7TojVoTc92nmI3VcJ9Tu8BS339tZidm8JMFco6k/RCuRTJVItkTmPAwliI5oDFsIC0WlGt1+78ohW1",
-	"PNADlCzfudpchKQl/YXkRd7PBq7+xEHuOD9Xjd4PPF1j3SPyWyP/v03f+OrxEbNhqjX5++FTu6s2Di7/",
-	"ne9hm/9HA6j+KPH+CkHG8PB4HhyVEWOhUGi02uK6bxZomaZ/CbmWPcwUEEZVMsIyLfHqyv6NFw66JSFC",
-	"LGDHcvqhvKWHws7UGOIdAv4XMMUNfKYBXHhDkeO93f37+5/d/XT//i9Y6ng1sy1F/I+O01+eX7zQbjc+",
-	"sPzPzINzNTZhGkt5E5zjFwmfIOiSykWb2kVplMoxJSpThUpWpka/pIF8SPuZyu36rAca9EdF99apGhad",
-	"V3fzPKEba6ouSZZKtrAyhFmGEAE8mWdZBdtAtBGjIIALAB2rA1WiTKY4RqpMQ24zop6EX8Rhfmb0XppA",
-	"/ua5ACCbNRrWS1fy/5fTsGD2I762DjN1JY7LnMvGRMzNci5NpgJcDJW3toAuxkX5heJzeUdW8AOXxNz6",
-	"KPh/FPy3vchniGboaGh7tle5oHe+x8P5doev2s3czDWpnfniWOoALQ3YHlhFDP3TVwlMc8IXIIsSw3/1",
-	"qCGeU2l047Ahh/KCNrkmNviQRr+KDzYI/sSTbir5P8WvP6xk/T8GC/k/gGjNxOdR5m7rSM41oF5sfSKP",
-	"MiVzy0gbGI2AWWAVTA1Vwp80hiq/xq4/HqePx+nnP05Ee+9/mlhf/WDZ/Wi+ZjtbWRa3dBdROqOvm0pJ",
-	"jraQhYqwEi7VzMYrUitRmEJmFDIh2rFV30HgT7W0+Et5pizn0lL6Qgbqz9hoaAmdWVYpMUStyA5bDi41",
-	"mDbZrlMrEjPGCBRwfbmoJZi1NXmMH02USly5YJ/CfKrOUkTjBxw1dE/he9FQx+BVG7kGUitkdgk5ElYV",
-	"oo15Z0JNZ8UCUbMZ+pNDwSyGmekCFCOMV4Z0yanJVezSLAjwDR5xoXFxqXLlSshCau8UHW+9oX6MqwND",
-	"q47IKl8tAJvwXjmjx2rgmpW5Gmo9n55iuBcvH+0JSy5lUqrlfjEOWtK8YE/zoeaEaqm5L5c44weKJsCc",
-	"aAnD5/C11AqwtRRKu66D7qiRsZxTos0AM95xCxBwFcUsjv3CzPYekieaYfl5TyaQFxvTD5z5ShTu01p7",
-	"LqU9Wp2txW+Gv8YdxHNqzCryH/ifwkG42L+yRnVZPBqGDsdlxJDd/uUwmcloZeGkcOz7Jmi77RLXtufe",
-	"jwe1hCDM3U+1h9QKU5yhRRwrnlhf33qlCeoYv3uENLa1kg6n/gipuLVsY4YfhU3/pFZZkBHqvWI+Zidw",
-	"a7Db70elMRlKVv2CZmRaoseqOY0Vw84kcVM6qh9tabfvUaILCxm/mdSADCoQpfTkdtJr+O2d7+kfozR5",
-	"+4GyMd0NzTdzFydKnJciHMi1xKOIoxK/1GdSVm5xjs3AHBVxqEWalGgS1FUl6neoCZyg7GGF94qOwjKf",
-	"aEL1hzfvWOi6HQzdeahxhnil8kMnpnQ8u6hK8b6JtZK8T91LdfHpfitgIg/6/fu7Dx7s3du/v99/8GD3",
-	"F2colHm8uioCvPNR5v91eKccLCGh2xOyPYT5fzjWM984c690ay+XcjU5B5aBGNYOaqa4sji+egolWGNh",
-	"LaNdXslMoeREoVa1Ell3PO+p1Jap46MMhBR7/V1CC7UVy1kgdCLuzdxhfJKUS0a4C5mliTidFw6+h0Y2",
-	"lpoRQjmuzeQEigMSPQc+RZBm4IPILNakySJ01U1ArsSXbIcy/wCgmZwckXOisDEirNtQLeM4ELm8HOpE",
-	"FhIaIZ9fcZ6bSw0J5guAgaLxp3o2L0R7/+qqQ72ERbOG+nieAY9XC8Mw08QpKHhtECw6YaNitCHuFypZ",
-	"ipCW3D4xg0UoHo6GgyXhnxHmFCYOsEUqAxkUTTIGi/a2c0VMTXkKEWdGpLowISgUEUtxaVyEWWJgPsKe",
-	"w5bJoa4gnxy4+zpNKqF6QYQ+rsJf/MVfiMDtM9QnCu6H4FH392qBRTumED+YqyJPFezGRPXE79WCWscj",
-	"59AMhpoAY1FDsaTwqCkOHwq/EQJtIeDqLMTevsAk/EqWzR0MPASzMfrPqIAFQ3gP6HvxlycvnsOCR8Hi",
-	"A6+YybwspqTHxkPsibY1EOhYKGFncqwYBhbInnU6XtEpOpw6B9TRUB+dfF3pCEVqUd7GHqg8l5fi1CRQ",
-	"YqJQYEfrihM5VeKNWkRUMj2YVMRlo3jKcC5n6Lkm2vvkE1eGaKiFP1CffEI1Mop5rst57fV3S06B/eAo",
-	"8KZ3sWsxqNOCXqts77GaZXKB3eZzFUNIHsP34oqWaVDV6bgo2yKc0wDwjCovwoJnKqiSFeRREQOA2PsM",
-	"wh5p3tw1QkXAgAlOyh2qoqQRBISnAia4+lrkOBNC/zK5OFMFAtpCK22a97Eq8kX3cFKoPO6IFEwxIjHE",
-	"GGAeqT2H8UDLOIvDsjOgZWZOwFKgg3vAWfznEH6L0uEbtfBHC0inHRfqqtgZ24u4M9S/U1phSVsxzlKl",
-	"C0uaO74JB97n5MEdgx+JthcJh5oV5eO5PoL2fOSufKMseoVF2RuuTKLGGePGWaLcoQ5J1wp3bx6QJch3",
-	"xjBgFEKMFpSgZTvUdD2eqkScq1xFNQpUk4kaA5Gb3M3UWzMYOI8qBkm9CBL9rFBXM5PjevQEATofkfzX",
-	"BQ/fQJSD8NUnh5qCNanwo2VsN2ekWjquMfF10BLKjqEoZBwgTMWi7RaGOG/s6rbhhhSo7XcOuGpzXBdM",
-	"Y4ZeC7rFa+RUcYiXaO9D6LZTRvDApla8fvW4+xnAQWd0FSAr6RJ7wuJlqRXpmYYD2SHQjf3dz/pD3eap",
-	"A1bhKczZuMBzEQ9b8YF4+hhI9uj46WORpVoJpRMoDf001Qj1Zywf0KEen8tcjguVQ1/xX8SuPjRtDywF",
-	"PLBv0tkMiOY0k/oNtmnDH9iDR4feoMEO+2U7H21YTxyZbD7V1ieooDgDJIFTHsDy/CDG+JL4wZOq+KG0",
-	"P+XmUvzgbjv8Y6h/6Ha7lf8PrcQABBaLH8RCWfGDiF0LMf6B38eC3vQICe5lfiBSH+G34iF+jhd0+TH+",
-	"Wf2UbJ/0dhXH0X/lkBsrP0fip//4fxf9Wgvudig/RpAaT9tOrljzw1D7RUCNEfoveymFidpMXcbk0gfu",
-	"BzGRY6x1SFmsoi/a9AqJprsdbii1o3AW2BalAJN+4ff7jvWDNpOS3aQaEIqgwxt/B7TWFaR50IszlQNF",
-	"QcktltCck5pdZ7m5tFW+B5dNST7IN5gaQk2AmDYyBHdzKVlUG6mSRcdFvuKoaz0E+9amf1u67Mtuaj0E",
-	"OwcVxcwlS0Ap1eala4HnDC3hr3glUlVWPI9hv2l5j/j6ingaUXSjF/H76k4zN0BZLvzFxhFlbdMODLBY",
-	"A9zWcAcKDxTp99PJ16YEjCDwfcxNby/9DI0Qin96xcXpw+JjvFI5+lVkwcIO8MsnRThVXBrdMByfAx7q",
-	"ET5N2wZV9qGJJWJlUxINhgo2LJiJtsuaaG6Md1BQineQB9eyxsPVxgIMTmz2GfUgeODqhtTnYMW0L1GA",
-	"m/eclcS5VSLugRiABfqmMhMzgzKt1MJdjniTa7zq4t3ePdW9G3cI2RbW3swtKvRWwRVZmNweiPi5fA63",
-	"8hM9icvqP+kbFYaGoEEAHTOiJOecyiNIdJ/BFFl8G6ss4y10chrc1AtRGJw8rp6Ai8Ffz8ie6HPtCnUD",
-	"4fhsnsTRP91XUkxTQl71B4B+j0B3EEhErNyWMjNp20AqfG8z0pi7GDl8H3YU2uAQGnxpv//gU1IwQoql",
-	"shu4CSpfQQv0Fw2OHsV0tpvfjzv+wOMauyqxlmiI1rEN0MDgKyh1VziznpDduYOO3Mn0n+CPNnjg7CKu",
-	"XCvQJkpGlNsmCdsA2trr9wHgQKAdANmwRzjoihPS5NEMwN4qxTYZ3yLKykBJwCK6dCdRAs4B6bBCZHKB",
-	"+sWpIReQq3p3ugjrG96hI5QoUDXzIEEQmjjNEQ4Dnb5o/uX6kkL6Ne/1erHbOPIAUhDlYKjjOB7qv2CJ",
-	"mDoO7m6Xeaby7q5os4C2LIh1hhroO3K2CDLTVKUKxyIiz9Ejdz8MtdvLiFPVoqe7Ub93LwJkhf5eFK19",
-	"o//gs+Y39qLdXh/e2Ovfa37jbrRHb+zv7uIbRD7u9wg/vtePEKNhb8ULu3fv0gt3oz1e0BUxs8fzWwHC",
-	"rRoNgTKQ0rwygRc+AyLzvYCJ2Sv8dT5E/zYyUNaPJiCtUs5bNa7y5Q8+No/jiMZKWYJdlqCDq0YZIgZv",
-	"DTa4Zohe/4PRGbh9ang1qwbkdMiNF+2F++Dth4FO7n9WIpAFezpohdylFTk6rOWr+ukw0qQtMEo7xFRp",
-	"Qm4poVX2lqFV9pBv7O3fb4Bsoc9XwLTcXW5r9+5dBGnxovfKIdVgo4F7eZDop7sNLff3mL2tHGatyd2g",
-	"waZp92ne/d1NG9wLGmyYO3BN+J/+/U0b3A8a3F9u8LPdB9DgZ3t7mzb4WdDgMojO7qf7sIa7n969vw2g",
-	"3fE8iOGPWs4cVCH41sdL8/YuzVq0SJ0jog7gLIEoK2G6e6qfKn1WnIee3rAm/c+XegG20vWI6KE6FNSQ",
-	"5vybtsm9eypnY/lQL7lIIgpC449YRnQ2fGdH5pCgILe8yRS/vNAx2uZdbe3UOsWZe3Nrx7pniV2BndYs",
-	"s2Cf3iQd/dSYTEmNp2yzDHiuRsEp8GjABsjSj9nvH5NgPnC8AGCrCOkP8iQtgsMcBgzM9YbZrQ2xAe6a",
-	"ea/4gFeshIIIigCJFYdPzNl+pROG44XNpQ4AdoeaXCrizHuT2N0RhPIKqzQD05A70LISCt56iA1IUing",
-	"8EWBZ6dTOjPBsyKqjpXAW7TsS+oJNzdSnCNfisXSP9OS1fleCEtxqCXWOzFWNa3J5To3ENS+AUfj3FKF",
-	"fyqAY+aF8g5BLsJpuE60qvoRHStdAY91FDjcbl9B3FYN/FAw7jdX/j7EiG5N5dsgaG0rFfBXou19FHp/",
-	"YaGXQxHYQrjMsj6KwB9F4I8i8EcR+BcSgckl8QEl4e83Dst/TwAomI5LzZIuFG2AU3KeMi7S7+NB2A2L",
-	"AYA+aYGeVTK4cjVWKZYtqjK+VWH4N/APHM/1hy60C8NazdM/xrL/CsBX3Zkk4r3RGdw+kJ2KxXzonFf6",
-	"JojA9RVPbVQ9bRz7B7E0XAk1VxCzPJ3NMZRcj1VU6mYu3sj6+PDlAgyE/5ZiUCSV4EziA87LdNHsFB5O",
-	"CT6YlNOQj0iDd0HuEAphqYgBD8Kh6OFMw2GUIfi+fhjEgHKBMJcFiDvv8xN9ZOhxmDo01A9Vnl6Uaryb",
-	"o+NMXx1FYQztPKuUkcNgzHEKLC4Iw6RUJNiFmPOURvQoHgz1bi/o5bIyxJX14AYidpOKD4Z6L2xibOZZ",
-	"IirpAbXX79Z79OVYfVZl7Yv98AuOvYXFmAKnL0y+cKkBEgOGfXgHFqOrtXWvF0LtNWey+sLOlSJ6HAzA",
-	"1EC1j4MoURpX2FtUr+SLn1e6dFFaTZV5c4XzQNKBpFOM/MJIkqX6v07aXEXZKS8JvIcN0MfnKldwha6o",
-	"8yvOU4urWyv3iy1g25BTXKEQBmzCUC+nnWHXVT2ZApVEkqeTosN50ryvuJNuydOCY8OrJZV50bANWi/K",
-	"gYZPD4b605BcKrUGByIOUnSBHO6H7wYlDEXbazlwUiKKEfdVDGmwnQEOgU8VcPwKDIDP88ejja27xG9Q",
-	"FF1hLWa3secIL9A8RXYJO9QU+3yI0dcDEQoIk/M0/60LMi5LS2PUM0a0PP7yybE43gf2mmUc3hh/MdcJ",
-	"RLjCGF6cWpVfYGuxFe0LmTGKM0729dHrZ2JsEkXKdjEPMv4rGY8DUS6B+Ok//D2E0EO2T7DY8HioZ7mC",
-	"6CEt80VUMkb4Yiw1xGhxrDLVSsHhHIg4UXCxxnQCSyrCX5BbPs7NNC43stMT1UWrhIovhtqtkAubRimZ",
-	"N5wNnbm5dBJlGTsmh9rO4Fq050oV4hJ5HfxNyw1bNs8kRnjmGCmPbX4eid9GohuJfxOJQp4ONcZf+5qa",
-	"ki+pjpjlapJe8RJQjrqxRW5m54prk8PNE95REq4/QwtFGRIV4G9cEtpv0fbxlf6SglkD8pxIi6Ulu+qG",
-	"lHae3e9e7P1W5fdpCR2NDfWXT++Li73evd6uiF8cv/7jcX83FlNlLWJSpFo8Or4vMP0GLyUXy8lXavvZ",
-	"yZfRUL/44ph+evHFX+HPNNUBTSwiQpzrtIj4F0HkGAlTEvBQF+lURR73FiSpGUJZUNuOU7D9N+K7XZ3B",
-	"O0JpuvGGWoqxzPMUssopvwYzYZ49ffpSTHKKtzQgTHz56tVLKBOkfdZXcZ4rRUeFUB7meqzyQqa6WIjT",
-	"eXKmCrFQnN8SlOmmuE/AIqB6org5HLy4QgM59tnXP4Mi4vlMVRupo9oyt3EEB4uymClR8p5eaVk1p3Dn",
-	"o4D8XiqPW4d6BMBqkwpI2c2kvf67NYnC9qN29ctrVycVWAJOap/rD5okTLqVj3J634xhaicQPz3Hcu4P",
-	"aB+EEymw9ps4M5jt5aVGW1rFIUgdMWRq5dYKVLHqalSudMFSENSLCCuspaUHpl0qdxAMPeEEu6CwhhcF",
-	"S9wWDuJl86wXLgJcpCKELKgCIsF9vyKrWaxPasbCdhUJPbVLeuWlLJf7gBOySMGCu8Thz3j3oLMUYfg/",
-	"alrKcnJFoyZhfZD5UAe9IhpTKf/VlXSIz3e0wBvudDmC9EkLq7IJagiQ74c2BTfTQO2b62vzm/kSDMrP",
-	"oYOX056hr3No28kbDmaHSePAZ3SINKkkM1cKgGFFELCFg+AFKhFnLPiSdIVHbDqXNmyU1RY3NdIKhrqc",
-	"3WonLS/gbThqt7hSbxiVWYmTXBmh+WBw10Vorg+mbIjZu0thinsPHmwTYseL+AtB5Vau98br12vPHkE0",
-	"L41KLl35Y525j06XD2/bTRJPjYUJIpC+cwXoinM13UYYWeN54Y52vve+97cf2rA7KbMOid1HQo5zYy1M",
-	"lA6gK4NFtz6afYd6ye57IK65/HxXLAiwPrUJkpIgIKUyG3GF/kRsbaUKtcxnoIx5ZepLFzP/ugI+yY/o",
-	"dsJkPqQbqbo2H9WeXzvjWTqlskatH0wBKssX0AEuERY304TWc58vFiiOQicqFziv72SXzbNhEAr6NpwW",
-	"4WsmoHqDgYhD7QeKKOE2QvwEPrswYK6+U46/NMMIOU/SQhS5TDMc1jf8EpcebACRLIvysR8Z7gNnfvaA",
-	"lgqMbmIqE+8iwpGINmRduxF2oopxGoDilAY72sgtGk4zCoBk0QLrhKBThWa6wAo71G1vdfW60JJfhYzc",
-	"HVYO/EpDo4xOC+o1Qo6KJsjMKNDqYDFgiriQKgkBReGnUWHcZDpk44R/B8vJvWfphfKrPdS4cN5VgpfA",
-	"g4FfRto5tzUEkttwE7i9PHGd3Yay0MD934Ptv3795KFj+DfULd6jxgaeLTCtEMZ+aDK4zI0+q135vc3L",
-	"FH7jz9ovVKqw3PMVV1x5JEsC/6hJfNQkPviF7o6GkCXlbQ51ft2dzYap7lQWKk9l9iEjQsYmTwgrnN3q",
-	"3Cdi/IxNsrII9Ql/8cwP8kNyglpnawtTuwF9RBn+IKWpl0hlq5rUH6gM9VjlbDvPlasn7cYHpG8LqEpg",
-	"DeMcsfcPbfH86Rhd5DE6M10Si7qaSZ2oZBT4CGOKVYzHIOLKMzUizKSYQUDiwmQqpxrO7Xf/KGRUmn9z",
-	"NS6kPptnMo+Gei4+F3Lnp7/7L3dRqKqN0OQV5yMhc8xyNZM5Bx4NtdSUJOMnSkjIIGxpEbuXRxN0vDsw",
-	"TJ41/8wwVrZQMwgTyVLAIuNYVC0zcQH4I+Qjnj71inSaD7Wfp+0ciMAVEaEPGJtwHm8seeCDEmaS4Jg5",
-	"kOFzfiDe/Sj+/H8TPIQd7L7jQ6pylckCxEtHfUMd7Al4FE4xQaLs4A5jPaF4TNO4Y4XcacOKv/vx685Q",
-	"t//y6HfPAMtEvPuHe73d3qcH4tE8l8Bzdo6evDo8El+9PnwmDmeznnjU2wXsJa4f7gsYDjXD2w+ERHYp",
-	"UgTcoRg5gI17sKbyW52t/RqqbNdSxBN48PzF3e7JqxdHv+8C8As+rxA/prc3HZbW4B7+kObKelv5/W7/",
-	"0+7d/iuEMmBbOaSytAYtf3hH03JJMgMfPn3xqkuG9l1ELZjDbFQO2jXNQRy7j8UJ/Whr1cGjFpIcweVv",
-	"bl+vbdIvZGhfopWVZh++0t0K3qw8thcD4maRZOd7oI2PqRIfZe0PLXMQzw2CFUXAG25YHHslPd+6pN1o",
-	"2r6W7TcYKJAV//ot0xtyqZI5fbRO/xrg+9/nbG1nkabykVvXxXti7VxZIUUudQKSJDQj2h6ZfHfvM3Ga",
-	"FrZTensgOUAT2Ll1VmY1zlXhTccYLeIyEXW2OPBQcSp3KPTwHEVQRjQfaqzpi4GhmK+QmTMr0mK1lPcK",
-	"hvqLinYBYjOaJ0K0qG89h6k8jlq0cDU35+ZhCTjrX0hWwr6vyaFFAgrKxDBpQKitRuH9Y33fj8LK1rwU",
-	"2ZSQRF0BD2Wut6F4Qm/7vE0qkr8xqzxWF+YN68LY0gH7X0r40f5up1TItboqkf6pHNJQB1iqLu4rx3YT",
-	"apOd+o3lfHG4K7jeh3O9VHjJ/vJq0bIkHyWOX4NID1vx/sckVzqxH6jgGL0B+nANhR3Bbp2tK6zxGWTz",
-	"oZ1hqCF7x9N/LNpcvU/ENjMzhHiGnk6lVSHa/lRJcpZzeMDJQ2ypzCiM3RdxmQpVDpfc5Doxl2WHe30o",
-	"FQp3a24yhw1s00LIQrz7xz1x8lC0L2UOxUHJ5vbuH+/iQwrm7WA0jdEQZHpyri7PZV5A6lReiPaTkxfi",
-	"/mf3+909ns43yhZnmNuNMa273T1bNh6J3e5dGw31XnfPRuK4u28jsd/dpeik3f6VaFOmYQdtbAoWUlLK",
-	"abmwtpoFainvB9EstCl8quKB/1cIkgE2UI4rGOrYdzAQE5lZFYMp9iI1GZldnUHV4mTC+rDQIMQ9X5gM",
-	"Y40xMWeiLh3wc3FpljanOFc5B8z6TQfgYNoPjH3W8yzjpCPqMrXlIvTEIWEqi12EUy5nNdRA2AcCYDf0",
-	"mGpzuvKrOqQIDCrAWqxtLXOEfC/cWqCdGDYRj5XgCz0KRF1EExmriLMzTw3i3ywo0nyovzoSeJEn81xZ",
-	"SvuX43GukrTgegi5Aut3AZeKTsTJi5dc/WOV9/93qsDRrLhHPjzSUVM3zlD6Ifvws90YjQjX6aX/rAEO",
-	"6RGirAD/CCPuI5FqTAe4WIlnBYRxC4i8T2XR0Lu6uqb3wtxC31+aSzGVelE/k1EpBmE+YJWBRlRGqwiY",
-	"9KpRut+bq7XuhcVa9yq1Wvd+5tKKdJ5WxWqrPIVFgaPrZhR5LHmdlKzxo3f19sWih5Bq7SQOri/oDjSl",
-	"M1LyJIoZtcscNqd68wZiFdH6bRlw8HrYmWWm6NmLsw8kfmEvlRRs6jeugUOV10IkKBSIc2F4eVBKGYSy",
-	"A5cMo4hnDt5TukDRQPPdRjLRUAeiEK1zGTXHraHoQadCYUR5plzoIvqJsYZgBnf3cYMwok1Bo153+b3M",
-	"THHy9e8+3oEf78CPd2BwB6ZTeaZ27MXZb6+m2Q3ygpE1fLzGbr8Uech6KccXeXckiIvd8q0EfavxPAer",
-	"IXDFUyVzlR/Oi/PW4A9UUAAN+qvyRuhXV/+UFbUAmXfAKh8YrciKxqEorn6qTJJcWSt2zExpOUt7CznN",
-	"MGt1oorxucMJaqveWU/E50Uxs4OdHZpPL5OnPbbUxxwpMs+z1qC1gyZ/Xqv6uJ8EReHm2lKkdxktVKa2",
-	"tks7gu30yqMKXzUA3D6mUsFhW45HUOpegOEDAoANmqQXGxp9omH1lZjlKknHDifZGRgriKVhe+XrTY1+",
-	"5cPQYSxhBkAwSXyh6eMy1bpaKD/yGYr1UvHFuXJgMROlkl697HrTGL9uTDeOyvzrshgtpw9oyA4Zq6D1",
-	"78YNDR/i7ZuOZcZAGjYIzeIaoBIzfE2WjlMVLit/0NTqyydkkAtfpwcNb7/EGFe/YKaa4qkyNS5yo9Nx",
-	"GSBb2Vz8uqHZp+mF0sr6Atz4z6kq8nTs2g/OZq8O30vU8u3b/30A",
+	"7P1fjxtJlicKfhVb9i2IrHIyGKFQKsVAAqMMSZXqklLKCCmzZ4pZdAu6MegtpxnTzRkRrEwt+m4PBj2v",
+	"PQ8DzMNigbm789y9e5GzWMyLGgvsw6D6M2x+kovzx8zNnU4GGQplVs+oMZOlcLrb32PHzt/f+b41NrO5",
+	"0UoXtjX4vjVVMlE5/vNEFupZOksL/A88SZQd5+m8SI1uDVqvpkoU5o3Sd6zI1XcLZQvx3cIUciCm5lLM",
+	"pF6651akhRVni/EbVYipyRIrLqdKi8kiy4a6XUyVOFvktuhEYq5ykeRyUnRTVUy606KYy3nazWWhMhhH",
+	"l0fY7X/SE6dKF8JooS5Uvhxqqe2lykVhhPQjukyLqZDiQmZpQsPtDXUratnxVM0kzGomr9LZYtYaHOwf",
+	"3j/89O4nh/ej1izV9LAftYrlXLUGrVQX6lzlrbdvo3JtXposHS+bFwcXQ8zxjUjEw0W/f3eMk8B/qqPL",
+	"z+jZZaoTc0kP44GI8Z24XDxYk5heiofaqrHRiRW8bLCmd6yw6R+VMBcqx6XO1STNMgGr1omE6p33RHzQ",
+	"7x9dfnYYi4nJh/pev2xfCmrTLRbuhTATcdDv11drLotC5TDFP/y+333w7W+OLj+jf/wvLb9UtshTfV5d",
+	"qRM1k6mGxyuLdeIGUjiSEjO5FLaAOVilE6HNZSSKaWqF0UqMzUIXKqEVuJyaTA21n0ymJoVIdUBxnSOR",
+	"qHGupFWWpqjkeOopROqE18sOtSxEEdK1LFRP9IHGpDg8eHCrtHOirGo4V6e0v5HIzUInKhGLeSQWukiz",
+	"ytD4NKUWT5GQ5zLVQ92OffNdv+KxUN8tZGZF8CP+N+4ciT4dxdQ3dStzVEW+fDgpVL52fnBML2VaiDM1",
+	"MbkSOXyS6vNeK2rB1qS5SlqDIl+oymA29fs2as1lLmeqYBZ2vMgv1NNHzcdzDD/esSJNoMsUHs9lMW1F",
+	"LS1n2HCycSj/S64mrUHrL/ZKDrpHv9q916+fPsKFeJqo2dwUSo+Xv1MNfOKhGGep0kV3PDVWafFGLUVb",
+	"Cvge9kOKc2MSMZ6adKw6opjKQszkG2WRwxV5qpKhvszTQgkrJ6onHgMnFC9fnL6il21hcn57bPJEFPhx",
+	"Woh2vtB2IKxSQx3D4SjUyULHkbicpuOpkJk1YpLqc5XP81QXVhyffi3OTJIq2+mJ36mlFTJXwo7NXAFj",
+	"Hery8FLPSuNZmh3hmYWJwbrSCeazB73JQjHXGurcLOC8we4EfdNCnH7xsHtw7xNgS9CTmatcwiJG8KmA",
+	"nRvqcvfxVCMLMMlSSHghtyrBx0qPDZwrPDKifTnF5ZvLsYKfh3qmZmcqFyZP4C4yQhtY9KJQ+ZGQIp5L",
+	"ay9NnsSCX0yZ6ZhF0ekNdVecyhlOOBJWzoKhYu/BxCIxSYHTOk4EhJSpQiWDoRY4y1//2uTpeaplJuhy",
+	"+/WvoTtcWx4+dmELWSxsxLOFSQgRPzNj7DbuENeLA2Lsnqh5JpcqGQig6zjCsWlTTFN9LlILDQBdFUrD",
+	"pGmcfL+OZZ6nyq5rbyIzq+LKQiD/hMZVHqyGyfnC4V9g8ANxeHAAnbdjuugHYSe/U8u4usRArpnCtaqu",
+	"ZWr5/ki1mGTp+bQY4Ft00+H0JNDHxADt4ewL4IM5zgOOCPbz0DeIRD2RaQYXz+HVFQz/3tVVRyRGWaQR",
+	"EGyQ5t6oJXX2Ri2hJxyLyVUCg4HnRS61lWNaBaJnPMQRLQi0QWuNY+Dj+QrOVgyNwfvqaqyQiQyE9HeC",
+	"hWuO5j41l1oY7WhaCI3HjMYRCUsyEswVXj/sP4DTCXtfHuPU2gVcPxrOQTFV0Aryp1xdmDfKLRu+5jcx",
+	"neDweSSX0orMWDwXjsnSvpZstrbB9bvnmdLnxbQ12D/4FK8d/3dUkUUedv+N7P6x333QGw26336/H+0f",
+	"fPq2WSR5qm2RL2ZKrxFqU/+7SBOli3SSqjxCJmJsoZJyk4CHrrs8yk5ueok89Z3jsF/Kc3W8yK3Jm4cd",
+	"a3VVjMb4RuzIap6ri9QsgP+dqyMhz5B1ANGXRwZ+8rP4bqHyZTkNaq617ZB5fCgCLPS6mzdf6A97776F",
+	"7+3caKtQDvhcJixjwl9jowvefDmfZylxyb15bs4yNfvNX1sY6Pdb9viSvqJOq1N9LrOJyWcqEXapC3kV",
+	"icvcwAlbzhVwD9RKFgruDZsmxMSo2YGYuW+H+i9PX3wZCSmIgkFay5WQQi/w8jlTmdHnFvi3WOg3Go79",
+	"JFVZAp/wAREg8OdSnytxkZpMFgp/xa0W/s4kDue5GSzNko5tk1LY9Vph0+rwF3s1HTKUfrul6rRVC/x6",
+	"pYmKTrFVK+UXtYZYFN+yEXgbd/zY6EmWjn9WusIjpKxZ5GOQX+HuV3Ckz9KE7gZ3ZbUlCbkCmIC6VImQ",
+	"Wa5ksoyEHGr6CXiZWRR4xxdRXXFGkoSrNi2ZNN4B7m4darpcOx8p5RpKeYIblCj9c5MKXeaZHL+xZCgh",
+	"oV1kKV5mqRbxVdex2y7+ZuPex83ctJlPdaFyLbPHeW7yn3NDXcdCQc+kKqHQb0FoNTpbimErrbw0bDnp",
+	"thSOk4/7u3F/vzTFE7C+/NxnVUsQFxxzLy9jdZXa4uOebdyzl3KZGZm8MuaZzM/Vz711eApBK1N8C1uV",
+	"X6j8jhVjoyfp+SJXiUDL7sd93LiPpyq/SMfqtZYXMs3kWfazb2UiC3kmrRJjqeH0nSmRg8lYeUM07W46",
+	"VqRrL4oCRPPEXOoIhe32BOV7VOo7ZLhOtS2kHtOXykKLCXPsMzWWC6tQpfR9gw1GCvgmOfsoh28iGjY3",
+	"d729eePHpWUad/+VMc+lXjoXxC8inAUOtFwWSFPek/ORY3zAzX+t5aKYmjz9o/pZr/rnqbWpPo9KNT/y",
+	"yrvJBdnXEnGmZK5y9lp+JIH1JPDNN990Hy6KqdIF7JlaNTvFn+Naxs7iLGKUjWMhiyJPzxaFEu2TJ8fi",
+	"k/v3+p3NLqi6QZEIaZ6bsbIWrqvHukiL5c9JT9+oLOuyrSnV8wVbq89yJd+g82eRKWcR5IvriFfAxuyW",
+	"gQtuqM1konQClxkakUrNYZGpj5fQNZLLa20X87nJC5U8V0kqXyGl/NyGIbxI7lhxTL12YRRwpWhToO+t",
+	"4j0Tcgx+BPuRvWzY2bfu+OPaPMQVk3qsnsJRg0cySVJYTZm9zGFpi1TZ1gAdYfU9Kr8WxTRXFqNhjvD0",
+	"4e44TyJ7amGzlD5PNVj6EjWRi6wQbfLuQMgCGXAMuZVmqpiaBNnXPBjH960zOX4zGstsPMrM5agwmcph",
+	"BKM5GS7V1Thb2PRCPQ+868BOZNEatBKzABk8KgMB9vul953M0LDMZSezVI/ASzqa5OTkgk42tdcYT9DU",
+	"8gca+tTMjB2rRNoiHafFciSz+fTak/gQX3obkb0FtnXH78AmNzKT0STd9cuZ1IksTN4QUXA8VWDpu4R4",
+	"AvRXLnL6XyKmC5Un6bg4wj/QZUeOfJlcpNbkS/TJFGpmr3X1QD9fypmi8Vw9pY/2y/WVeS6Xrai10Ol3",
+	"C8W/w23KE1DZzrO+GuWTUW4Tt/3Vqf/q5PSRu+ac/0dM5LgwOU0+lhcql+dqlE9iMTOJyoTMMnNpRXsM",
+	"0xExNR93euIRH7aDfiQkiIzi9al4/PKhOP2m++nhJ+I5Hjbxab/ffyTak9zMxEzNTL7s0Npm8szkuEd3",
+	"LJ9MYRWHwplLFOhuh3pxWewtHwk4w5m6UJmtxADd6wdn9WA1Boc+zEf2u4XMSah+j4NvFkWWqnw0NuaN",
+	"HSW3NzvXsC0W6GT9o7rFxsErvCNlX6g8nbBcsMrkqlT+w68e/QC+w+ATMhPIPBHtp8df7x0ff92hCDoI",
+	"xMQ4EVtQhI02M4wmQc/jbkQ+1GOZpWcsN4Tdb0nwKD7exhK/9U/M2V+rMQoc5b1aChw7XMsUN+VvZIwa",
+	"MflYRe7SteV1u/P9ujq99788d7kkt/h6/Q24xccN998WXzXeflt8V7n7dr+qKpdTw0201Qjq99C2H9ld",
+	"9qTKgm/EabfhqDt8VWOXW3xZ5YVbfLALJwR9h7ghXOIqgSPbzBetaCcBq1vP5FB4vnaYb0P7wO/DjarR",
+	"UxOVrz1s689wtJHDbOYedTqpUuIKMa+e5somNtPCKl2Fx3Tjpn7bxMsdvdRjZW16rrEhPQZN6UJlvdbG",
+	"26PfuxeKGL1+v7/fQHQPtcyWhbr2zqhyfRQgr+M9z/Gl+nXzJMVo99QKSV1XIyGxZVFMZajX3bEixh9i",
+	"9i94j0JFrIVfjFa+YTMRklsgpWCoA7F/khYFWBqXQoos1arjYsQG1Z6xY7jB37owre1j16LWdwupi2uF",
+	"IRrwV/juW1AbxiovZKqL5bVhX+Wrp3M1pq/T4vrP0mLlMOPs+PtG4gyHuaPur92uQPibc9J72Y0SEcB+",
+	"BPY3sLjZnviG7ZWrrxcukm6oSzYHbVgJYcQW43SXIk7tyAfDxeJMYaxZXD4ifxZFA6XWUQSZFIbavSdQ",
+	"7hMPR1d7D0ep9VIlfFtOamz0WOnCRWbDaCSPhzXSp6dBm1mqbCX8jZJcRHsOHEgXTplzgqfJ7R0xU1KL",
+	"p6dewztyItpQf9L/6W/+w/7BPfGrSIzNbGa0eHr8svv8VMyRHYI8F2pqON9Mnp9zZDgcwqnKEoqroL2A",
+	"EDyK00utuPrv/5e++Kf/KJI0W+AF80//UUxIoDbZYqbEP/3opitnZqELeJDkS+HYsYsA9vs81EBpZbIH",
+	"DAOSNeDs8DgqgrUcj3OVpAWvcK7OFxn8hh+evngJ81ZDjZGdR0KWbYm5yq3RHAvmQoFyZRdZQaJ5TabN",
+	"pH4zQveTv0zgIssy810Tb8b3idsgVQoLlkhgT3+9SGCBMW4R7ibF2V8/wGr+IH769/8bsUK/Rrzrz569",
+	"+Eq0PXHegVDiS2ULoY3u/lHlxp8Fz7WihpaDxS69aburIU0iNy6RXZwVgaheS3bhH1VChId2PqKQO0xO",
+	"nKvkl4szNdoxNT82ea7GFMfvSV3E2miFUVpKw/h+34IHMGIl9YjY9ggbCJgYuyyi1lUXvupeyBxt//D5",
+	"5/DuaTmVL6m5+uPnSmqSlz6nxtEIPU5nMrOrsz8BohaFof3FjED3Mt5eSiaw2eW1XgiKlLC9+uJvSvyB",
+	"IRS0RkSwa8wOm0wNjr+OHE3tdsOldkS8azRNz6frhfxQr+1fNyTfJsh8t9Kk4wb5tTrTV+7NU3Kx+TN0",
+	"4xUuW9j+bo5aAW2MmDZW6cyZMe5CNo/SInZUhukSxBo6VZIK5cL9xhy21Zt/kaTF4wu1xb1fZaXrmMM3",
+	"U0kpEonRyqVp5gvdo4SPJI5EjKyvR5dy+becz3NzET7JFQxTJcgTai7KqIU20NUBfInpSRNRS91CftXc",
+	"Tm3jZaG6RTpTTe8mqpBp1qy1zWVepONFJnMbiVSPswX6HKWLVM4xJEJao3uNKRyhwCaLlptg1PJKD/f+",
+	"7bp9fGbOd9xFdeGSpLcyOgTUsmJ1qM2AW24a6+dwdxavVD7bUdZ8oZUoVD6jG/kMmykTV8ZGk9sbrtvx",
+	"ux8Xou0FExAI7lgBh7Tj0+jsVOZIKovR+N0/Hg11nExioSHzFE9cqiepTiF576HLdfItceeYUojB6pzo",
+	"q/IZ6DQoXMXRUMe2SEaB1B9DplEmi/QCw9uFZFs+DAM/EvudSMTuHTwLRk0m6ThVuojFmFKf4iS1frIx",
+	"yETzXCXpmDPyMKUtU/KChjUj5xuOdCnsTGaZaBut3CzmKuf7u9MkNQUD2NLgEW7Flp8kk00v/t69GbVg",
+	"f+iKDpagIYYhap3nZjFv/MVpeys/uHXfdSxISlvOlOJgG7uvEcu25iWgm63ebVYLeUC1bXOTwq3ZfIx/",
+	"l1JUsRPbAps6NOMUOSQsNZf+l1zNlSzkWZqlxRL/HkOM2HJb8c4P4LjSYfn8NOi6fPqyMojy+UltOOEv",
+	"bmCQHiNxgeyau69kOHhP64TjFAYcloDWDadpBmG0XuEb52mh8lSScD1fnGWpnapEnC/SBD5u8ExUFaih",
+	"rmpQbCgBRQoc8MAqxipR2BTdTWQrqatVQ+3T2DMlLcfK+ItihXpnqXYO01WTNNqrd7yd4AZaFCpZXekn",
+	"8DpxadSloHExNossERzc6r7F1dKU4awSlJ2wL1yZmG7UmDINLqfL4GY+MyZTUldv/ZU5ZxtwRErHC5IC",
+	"jEjmnGp5FNwz5QymEkhFYybdJf678BPZZMRtYkkb3OnfTBWa5EprGCfgo0pDQwFpM1FV9zra2C5Tq3hG",
+	"oX99ddW2MalVvBi0RcEyB42VTHNlKrny0Vz+ancqJRgO8Bw1Sn5wcae2SMdrNlDZQvh3YE9mSlo8rMhy",
+	"wz28+U6t4cl+aI7G/PpE5bmoWqQ9H98gJ5YL3gTbAD862TngVgT3MhBx6RQAwYS8AijlBB4B+KXuDIBn",
+	"3p4PnAmkFhBznAUfG3GXr1dXRxTPGInY2+/xK2XTZCGzEdjw4QEb6i22MjPaFEanY/glydNJEfdE8FS0",
+	"/ZoB22NK6QjeBEsmQjIdFgZYCRDMuMiWwjdCocxo3DP5G7RsSn2ueq5DDHR3uyRkIVJ9rizbn7W69MYf",
+	"m5m5qtgd0RKIdi8f9kHJimUCN/xamicP+mJmECRgrHQx1E6Noj5sVCY9fqNscS7zRJBeRdZY0Sa4jN8+",
+	"fiX2Lvb3ilzpxEKwyNPKGRcLnSlrQ56RpYSCJKQdar+oER/CEEKCkZEUIhlNpRb7fVEb51BjPlDk+qEG",
+	"yq1qFyWiizNiihqLBOk19uLGKNWjRBYqdsy3uhkl780XmuNFMZzANSBmEu/hzB7VPBbqag7H1dOpjZl/",
+	"psVQV4dc0pfJ/VpGOGpktrCGMGqO0VlHnOEMXKJ76CEZanKvQOoFUdnGuCEmODgtFU9ZzPEMLMc1+ACr",
+	"3r8Gv1/oueOT3opaoatuzTEPvXT4VnDIS2ccjsQdw1bUwvMWCplu10mcvVD5udLIFEHqSS2Y0+a5maTI",
+	"k2nmW4qbyDqfp/qZWxF64JYF/3omx29eTJ6khXvwxery4PPP5fjNcWWJ8PHJqV8m+pvXygmyj3ml8Men",
+	"wXLx27RmJ7Rk+OxFuW403mDx8MEjXkH8w/Vjn+pHtIj4+LiykvjopVvOl341aQyTE1hRSiMv/SZN142L",
+	"26k5WFhpLzkcaO3X+ETBTOj/7xqbHaS3pyj+Nlz7l6Zr0wS4kn+LnLJwlpA+L2RmI9Hv3YPbod978ODB",
+	"tf7aBw8eVDy299aMyuSztFi+WBQgtoQKFdz8RNBOdhYNjyAgEoZSvfs3kTR39ZLa4r+OyybX/vCEuuIf",
+	"8K9vK5M4LWShZmpndyLIXdZ9C2s+9k2WF5nnxCgZWUZzIbmPiBLvtuDqy1P7ZjXEiUQctG43S4CL+Vzl",
+	"oSSEHSKMROqw2ugd+uGnv/t7cdlxciGjEBitdpXdeWCZuWweF/iMrhsXvUM//OYWR7VOQsf+drWbmJLW",
+	"N6oJK4cDpObUvtmgg3PTKFBZf2nCR2Q+JNwSRzCN+gEQ0XVDe8QNnMC7rFOo9Tg8bBnwRsvX5KkmQo6q",
+	"ikw4i1SDqOkQEnEWmH8pYvh33Gkcv/NJrP4ANLvbXtXUFFwat+muQe6xQr9R5ZSVOx6QE29luHaNqovR",
+	"RW4yTGOwO7KV06m6nMq8ICOxyRznaD89fSHuf3q/3z2oHxApIGU1S7VqYhzol3OMYwsbHX/BJ3qLD/BG",
+	"3NakeClzDU6oHQbkPtl2RLX95+FV26kNpDLrqLJo35aExhscMAXe6BM+fXWxoVRj4KC0/Z9oju9F4jhL",
+	"dU8cT9WsJw7ui/b+g0/3O+Lwwd3OQMT73QMbD9HGQub2M7U0OhHv/uEANK42T6BzBK/etTGGHfl37orT",
+	"R0ciPoBGRHFpQMnTVo0XaM/n17zKhi0ioR2J+KR7SN+I4JMImh9qeWYulPgNvu8PPsHHqcxcwrVyQD0f",
+	"dvcthEMtcrHa81D7rvfDrvf7V7EolK58wuk1+DaGqrCuAOyyqgXAkrWiFixHK2od0F8wnVbUgvHAb/2r",
+	"LSUO2NR9agH+ddf968A/Ozl0/zrc9+/1r5gySOVpJo2Yw/dGRTwQb8Rnomi3938z7+wdROJP/22kJpNO",
+	"VSc7EvGbA373IIw78A21otabg231Ax7cKX38qlWO93cHNPw1SGcv5vK7BSLrWVUIgicTbWA/nxwu8pIl",
+	"zYHj6XPn9XWocff2D7ZCkRt1GwFtI4IU3TXuywVVkatWfOO1aSVhkLZqjuWXJZzRDMw0gVMJbThVZdDG",
+	"ZJ8dmwuZp1KPVYyhfWo2L5YRmWiIM1ly72oFrUM3+B7wkkjEbLlEC0AMcjFjQsZo6bJo9x1qsPs2uL3k",
+	"mNjdSBaNdsfSeACmWvd2Vaja5EuWZYDmym/jwMewUTBy78E3OKfdAsibgsfDnVmd+FNNcZNdgN9lyMtE",
+	"5QOMtJS5+P1ZPxJn+99G/GBEYJ/i9/jsu4VMclmkY/deJM4Ovj3C6CduAFu3QloRY5wpG+fbbKHRGCZE",
+	"7/Y8ztsIfyUxyM9+uwB2dlnca1qI9YricYN6iNjVZJzDECBnhPZq41Zx2FGrJPqmft1vYiaLPL1yHYe7",
+	"Fgn77h/bf/X//9//5pu/6vz0v/5/3v2/I5FDRliqw/do5ypLdmtrt3lhKRRk88FiKDfpozdhVckNv/0Z",
+	"SyarPTgriUjUea6UhRWc5EolZhYJjTrcPBCng4gsSlodXajcNpo0XgVhnXAy6H1iUN58RxiVhQuNwff3",
+	"9nv9Xr85zIWj+oy+7kA/9i++jVoQAWqb/GbjAoKHMB6ABkLDY3ePNs7bs3XO5JO0eJLJ8yZOMlXyIlW2",
+	"ICPidQ2hXe0Ufc5vo1aabIeLGYWopI0eOp9tUouvSm2R6nFB59c6s9OEbE2bQ/Myr4NsnBC9BacBDRaN",
+	"w6OfRuCHXU9U9JJwLzWfD5ASKkPfbxr6DgH+4MNrOj58v5cLJtpIpAmGWCtnk0c8+871i+nZ+RZArBfq",
+	"S/82eAxN2nhJUeabN+SzSBK5lTK5cAOOBEaJULoAcfJU02Vu0/J62z6DGMb4EobVdCAqmU01vqcAclIl",
+	"VQYNl0ih8lmqiaO0F2QqZTdA5Yrt7GrPQZ/VdRM6wZfeBgZ5m2zgqX7NE3WR0phte7l31YmcxvGn/3wp",
+	"PhNaXOKEhR3LbGdLlHNojNihsdWunPBHT/gbbAeiH65dAnqL37cUMw4fySx7MWkNfr8Nn/q2LkC/zJXl",
+	"Uh9SC8/l/SGvpDBQSGWumIDJo02paKPtOWVNxm6I7Ha7Ry+skS0wwHLlVLyvxEBw71vt5Cm9Gli4qtN4",
+	"ffz6uRibUqldk8zhPQsrXNkJWaOt2OXX/LZnm3yHXvsdvwbmGDwNo7HUSZrIQq1lav4N8B6PTe6s3LFc",
+	"FCb2GR+oC13BrYANYyBqlr5Roo0qFFAd+V3Rxl7KIGs+7mzNAImPHbtRNnFBN1dwKulm59AX5pI7dyUZ",
+	"ZKYSlpk0UFqWWqzRIOxiBv+jXc2NOGBUzRKVn9X2Z/gb/8nqQX7lIK6VWFhnfceSLlT+gqK3aXvoFCOa",
+	"Dd6N4WhG6B5Wya2PivseT42xypvCbamqRxTH6h3iLG4QDXD+nsdZ53CXkhBZ0T9TRI9JbVZ+urc+r2Co",
+	"0r6hKxE7hzya0VTqJGsszQPEBa9UmYEllDLOIBOXKgeLzLzgMLzcJIsxHCMXFezo84iMEm5dtBIyN1Zd",
+	"H+NNkPDEwL2IuCoQRlXYfWc18Lb2GSdjllTdvPpNPMbpCU1nsr6MNcPA6m1SUVyr8gIqYtUoAOjAxxYE",
+	"mrYX6rxBw4vbTmIp+au/NaKKtaaiYQbGlBUNrtHNAGzxuGYD2cEw9jWYlS35mOpmDbyAwrv0jArIQAC3",
+	"lhWSdvmpQSkOScmMuZoQnzk8OGjARdo2Kf1sy/fGW763bfb8+ZbvLfvb+iWat/CpfmI4ZHCXtJY1fruZ",
+	"odAr5DOoP29vhDiTNm2MFl5ywKVLUy0BOpy7r/H+upFx0Jl4rxeuFrOZzJdkepinubLr7TRp4bIMcNxA",
+	"zlUKphgIgXU6NrufVxbw96Wx3cv9mbTFKEy8X+Melxi6Gb4oZAH83ckIsoir0Zs0HKPVFtfT1+EA3kbf",
+	"lySZZa23K65SWnpHBhHl9gRL2zStYJPX8qhnqd01aevGlLODWblGQys2IWlHM5NfS4tfSPvckCkoqAFz",
+	"3VdfqqsiqNeysg22VW0uGM82S/5laKrY4U7AoITKdUBnXiaJHQTVSsjG3W4y03Yidu+ZjBC42ZFOaqI3",
+	"Ck8WGt2sd6z4039FbQDgkkh/HGpli3TGpVL0eGpyrLGSuKo6HDvD8XFl9EwlyBX8JS7m+vjr0u49ftN1",
+	"MX8qqYpWmHfEYTpDHXP7nIeNYYfiYVnExxa5RNMALJV1yePkNrC9oX7pM50syWYkzLI6s7A0tBQi1mAk",
+	"QWLUGeZOtWPiTzHEJOtkhG9azEVudAPRQq1yGrRXQh6Gyui6xxfDvH7Rxl9h+pSqzYAY8B4sPGhzVnUG",
+	"bJeisFDKLO9tzLRYNahjysiaPCiU41fH/1LlFTJbQ3bAIakKFhkhpgihitBb7EJvV6NjcSNGnqhtD/uP",
+	"OyKXnHUgNc+4aZZBSNFGewHMWHpu1mCjNeejqw1VEuHCTXKJFcWEFJk5rxGtvEptc2aDWY3Qc7GmCcmk",
+	"gKrVCsY4cjH8NtWQmpNv6VP2DOc4aN8/PPUd+UdPXY/PuMPyZd9zWFJyxF19vymvZ9M28GHe+n7gcFFv",
+	"Ii0b/+Rwbeslq9g2xw5O3LUk73gnEHHJW+m4OnCDtlXZpMuPImFycQ2146sxvBgz4d+qmayYqmJbER/f",
+	"HW1wPjBjH+1iCa5dq3VKCiO8SrZUOa5uErUBRp7VusNbUlcTJay9pV9W6qXuEiXm+PQF6XBSOyNIqLU1",
+	"q3aoywWvkT7XjiXmvsB/KCEFTXSRj0e89/JZJOLz+Ei4N/GnOQV46kSoq/nIymLhoqODBpd9ern6yshM",
+	"JlYVR8Iq1idZ83QO+w7kM8dMpkT8WDRxrFyNj5LghdGonDIpVyaYNt0FXHHTeVraND5GjxGHL5/BmZEx",
+	"LyuiaCiCWbljvfWlMxBpwclwpUcBzQzYQWJCJ1MlfWbVpwuzrQ0bPj0zxdSfdL/RnFuppC26ZKuwLiAB",
+	"Uye1SvEOW6N7+5v2Wgm5YmAIGdaOX65Vf4nB7p5fX3ealaGqSSrPtbEghQFJlH/ikpZZ80WtxI9oa0Me",
+	"b5PDhubGkKBXkRmRuPEFSgro4ys+Vx43fxMKNMmdjYEawZ0Ok8J+veTI8Us7OqDG9dyGrcI6EEYuJYCz",
+	"XSOlncOyWVKi47Zrm94t3+g0z+X5zqP0uT24X80Ih/v9/rsf27WNw7CLyqp29ip/3sBFiObH3WdAPGhr",
+	"QcMjBo7CLpsrnGVL4T6whCaBH+w6NzLWrvMh1x2t6DvxNdEdHb1XkioRTv0YBIvnx+hJM9iRNasWUN3K",
+	"YYlWDnojrQXHZK10UHcD30ST11V4wlCZ9xBkYcadOHkySsVnYjlK965GKZSkoGDFQiUl8pfjuO1lNWuv",
+	"hlLHSuRQr8DnDfg75pn1QSTpBaY2kZWu4fu6f7SDAnKKec86wvjoN3hQ94N7dqj5oiVgFcw7rCa0hsk6",
+	"FU2f1grdS5zAeFNwOKr6ezTUqygGNXA4YvdN2HDOSrtqvwXxxG6IhJGFv7ZgI129+XPYBG3EyZPmcLKG",
+	"7JUvF1SmfSJOnljRRmS1dWSSYtn5TnPb66KecHldwCI2f/LEp9xRdXgzAch4G1fUlmtNEATAuhN4sJLb",
+	"Xp35ZOfoxPr4dhubTd4XzKWeLzOxocML547dlCMDgqiuoye90njM/a3lbqc+iqJOq3AIKLUOJGKfhI6h",
+	"0XOqjzOio4J4QvRPgeCZmq4on41YebsVtVwqNzJlguzaNma+HPNLavXENRr89LBsP3h64rvyk2ez865I",
+	"ZpU471sI3q6Et27XHhXhH5Ux3KugZmU4Dr7EcZsp6VuQDhomjwfZ5p3dDvKtBV7uFvR4m1GLWwGINwp/",
+	"u4ZT3TxiaTXk6IYxQxtKCDXEU/x8MQihs7/BX18l+A3++yZWV0m6bMgDSsHeMCrzY+NBCMsUSieUH9vG",
+	"hMrFXBRG3OuLXwkZ/AppQucLCHRAd8EiHqxk3oKR4ALrKGAq1dlSgOj9WrSfPnt4LH776aD/YO+gv/+g",
+	"U0kyqo+yFbXCfnbIqDrFph6GLcHj30Jrn0udvEbqfsQAv02x0PSLkxRdIjGVz/AOEtH2yBuf8e1BVp8A",
+	"PbhzJPZJ06B4oRuWhOn3G8uQPA6D4XcQ268LtmxM8SR343vhRW4OUHaSHNEmjcQpaLbCtXe4ztYr9WDl",
+	"86UEG8BBmzS88pumc7giZIGJeEQgl2UnTZ78+juVYVaCbK/nxLWhh98H0UTcY22QAcpmM6vxFLedQW3N",
+	"XmwPulvZpFXznCMZFgWwg0jsdyFZMGkMXT/yKunql/WDug52txlMdpVeNi4gl6PdcQnLE7SVe6m2XVVv",
+	"Cs9pPUhdnX63C1d8pa6KhkhFiu9R5DXn0kV5qt8IydZnpaFKnlvFMvySEcHReZ+eT+HfnKMic8WfeitO",
+	"5Szdzni9WpursKO646d2sJr23uUGNWRxw03DiUiynoZkwzwkESeoW2tOIxqRkBEPKIsbnwmsOChmBuMS",
+	"pBZTmU1KEOBCZi7dgNGuqplJAEIeT9TlyB8+O5qYfGQhOTje37N/OKDQXYy7I/vLUFPPOGxwVRC6lV+8",
+	"pkIXqQ56qGEtNU6yFbUah7WlaMDL/4ibxoCFb1zD/OMTdXnim39i8lNKVXbhN2uxA6WAOBoxl+eKzPzW",
+	"CU1wF1JgG/5IIc8yaXalf6FkVkx35Aml4O1Wz7whQky2xQ6lfl/8ruWGcEIf16mcu2oi7qen22Fa1inf",
+	"I+U7+1s38LmwxS4UUTcWilgVXMrXRztYWDZAXG4Gf98OdH6l0Y3o7yttbkKGdKCxOzS3q41/SxvP6swr",
+	"FvH6xtSGXq5JsORRCfrIO7TRBBSIEg0sVzMyutQBmmDkkmMi5lSRsw86TOga2sAnh1uBDXxb/rM3GnS/",
+	"/b4ffXL3bSP8wFP911ToYLvas/XwrLLM0Va3XyhufdtQzebp8deROIbIttw7prkT0Zau8AdDZfIrYVgr",
+	"K09WFIYlL/6a0j3S5LaGGjASdrTH9ISxE74bj/jvqCxYw3divgDjPscg4FzuYD1DpJEeF2rwyRDbj/jE",
+	"f/IWbhFarCZa5Ntd5GCDVolQmVUUV9iWvKZaqcQKdrjjfWII5MvtBs6yrPlTUa4ZHm0HLDRPhX+Jg2bo",
+	"s9pTj3T2Zj3kdXj80/EFnHz+71krqryI8yzNLe5P2qpW1PI7uOsUAjzs03Iw5Tk7/jr887j+5+etqLGt",
+	"z3mA/rewakrw+NRNwD/56piffYsJv+gr2aE46eqFYEjFud5y+J5EvCWD8GKfmYQk2hOvCc00ppOAQCTg",
+	"FkLRcClkroYaC4mRxyq89qngEFlZqmmMon25roBWVNa4gh2zg3qpLERRdZdWZwCNPKWpwIxS6/jb2RLn",
+	"4W6oCAReOpbteDymeKY6JcPDkJTjDjQT1C2CFtFexgguZVpmvKkyUwz2pWsLJ5XArYi1CgyFp1AplLQG",
+	"XlI8XN1LSIobaqtgB7BjmefLLqwHs38f75LmCgGCJ4YqL8PbTnULlqkcIgbQIHULXlVtVnezg7RiQyZH",
+	"TI+piWvXofFpS5PUihLH54g5Gt5PjZKFFxjK8OvPZTGe3kyr59Wv6vU3u/W3N61wDbkdQlXdTJl51YqC",
+	"X2NOqC11aTR342ha50r711grrslVotp0HBbvUotQqQc1FjB3Luv2n+2MmlVcnOtwG/nNNctht6a29yK0",
+	"3Qhl+4Ut1zW1v8yy/ssg66cMgbSjslxO1IMolZgEYXAYwY/FZ1RwsKzyEIk4M5fMNYEjxx4erCGWkL5u",
+	"VjOvg1ZscieiGmfmak2amp9SagX3zYB/Z8tg3NCAIIjA9m9++rv/aycS0pbWwnWJLithykSwZexsBlRc",
+	"QudKu5zNC1Ooo4Z1DBfQLd7qGnlz9zaVss3lbstZNzgjpiTjTDpvhdvBJhJ8JgtFBH8jNXMrMDhXFVRa",
+	"XyriqLSJ5Wqs0guV3Iw93IiTJYHLbyOKrXtvqwCAuscikLC3lKub3NAlJylbbNzIEidqd2zp0lzsHG+Z",
+	"zLEcgK8GVrcZN5jYbhD96ytEVccEQZqhR6aiS4CkyS/ILHOBYO73m1T1rgds0qgaV/kmMLuPXMlKl7Wn",
+	"C5/T6jGOMc2sjsJiwdOg5oWIx3lapGOZjaiGGtgDfF7ApoortS1yrYw3o9AD/u/+/qeHd7sHwn3DTm3e",
+	"Fq2KOkL91Wi8c8B4ZVY3GYdbhEgsd+9+Xd1CgMJATRThLtxyomXocrqENe6tKYNYL026fjqsnwv6SILO",
+	"gxODddy5qlFmGsxJT4+/EF8dCD8qp2Te7d199+M//+3e6e69fLe2lyaqjsR+/2Y92fR8JpvFA7/7//y3",
+	"eGi8cwDPSxWPJcZ2RhglCLf2lkiTwVfbm0dO4aPP8ZtmeJZ//lsGwtFg/2T4mU4dQKYIarLoZD0gUZuC",
+	"abFFPgcENXb6qLPqlcwwfgn2b+XMReuYwio9byyh9Mycp431LCjeGC0T5ymFlASWcWcWdzbxjSbx5z52",
+	"bicZxcf/XFfH07/5Eks77V5OlQO0yC4bRtGsTEWCSWQESWWjEm6tOToH6KDIF2oFiUiSWQUz06gRMgUB",
+	"EHZXLZUlLPAUiGfSaRZOG00OW9Tub4bIDVW1bXJ/rkc8DdYRBUj+ZAf9sZaJuv2JrmdNrh7rxwQahmfA",
+	"rmwPJq+V6ZKoX0xTfd5rva019H1juyV0Ekwc7aNroFBrdZfWkhKqSLGLgI0jLIy0Mm5X9K7MenPV78LK",
+	"ds7E755taYynI/yYhuzr6jz0jXDMPO0aZJJMzaIJZuBLL/Ewf0wM59ZByztXBdwN/nNdnVQXAk5DgppL",
+	"E1P1kVY8tNuG+dr0XMuiuR62YxL1TfR128qPRWFceTEhWe+FwA9Be8KWpF75QcV1RF9Kin4DXjOCcEz/",
+	"dJfdP/U9PCwbrf9EEe8PdeLf+faGwb3BVyMz3wrpxX/9gt9fU48wCAUOt+U6+DE3igbuVEP98uw5alUi",
+	"YtdRWvPpqSF/0Z3WdInTJtwAQoeobvtbhDq6tly2a3b9WG9o/7yBTED2ke2u7rCU6DxP9TidSw6KmhuL",
+	"wp3IF5TaO5OJ4swSvOXOlmUkboQBci7ppHCOr7bDUMfJDUTDpU9waFbYxXha5q2ghwyTtMWpKkRa+BuA",
+	"oWsqOWaQRsYyBtxCnDhWGOC1EG93+xLFLnb+qrSx5ZVefrN6mz/iRe33HtzrrRMddhIYVq756+MPt7rO",
+	"y2gzhrtG03u+0KQPSC3MouiaSReBKFcqNw41BABY0Y59ZkwciXpZRqQMchNi3cl2KTh0agURg2qrNxIH",
+	"+BDXpYLnQbsbX9xdfAANPzP6nGP5w/Bgt6iEzuQ8GeDBYFfpe4bxf3r/08OmIP6bySDbGyQ3CCfrqAvC",
+	"RcAgSAuC7EteSnIfIz8B7nSmQkhmXq4ai1qjfGwSbCilGO9+GIIMff6pdWJOAbKqy54dCMlM6o7lT8Ft",
+	"7DoBopakrd3xM2i/fHFKJV5pXfa+T5O3e/Rjpydi10w8oAOxuQd6pBg0FdWCo0BH5D5zs8A4HXupcgvs",
+	"WGg58xkPiwwq5jbIWPGAxHf3Z8Qlb8uBUGyQFBnlOWNn5eCgmjmh1jpWHlY7GhtdYAZymgM4BSUFWTwF",
+	"AjfB4tUqFrpI4SpT+vbFw0bB8M9UJGRxoFkubBL/Nrp2n7vDX8vZIidVLJbiM3HWF78RZ/vvfrw6EnEF",
+	"455/5588LFw81NXv4H8P3v149e4fqcTbp4effNI9AG7+5UqlmTY4FPSZys9/+pv/8FzmkLWWFFEFB6cT",
+	"oVGH0E70UK+ghQ1EfDjPaHiJ+A1YrSFRPunstffhz6u9cecPZ52ogiQ01L+XkTiLxDgSybdHIr63RRN/",
+	"OI9E8Fkkzr/FvPfUVlEDZMHJ6FzzmFGLa6bssRgu+v27SvQdJsAkI1NYJM4qv3Gtas4QK9P3WVCT9PJY",
+	"JCJPgZdGQ83PlEiAOQKK8JHAYJg8VZbv8jMYuFbnBFkwQc5FDVDLQ52kkwlmoeEJ70TivDoucFzOVAEF",
+	"l8/FZ2LfrcThy2dYEBqxlGhZ5bsfr/5wxusHC16FTvIvtfdx6dUf2j/93d+fvfvxqgPwi2u+YsAl+ngJ",
+	"JLimBbdty/63jYRIsjohLrrjZLHcEYRwxvt7yz8cxJFPSEAwQ5odRErNlNQQEVRBpuCl4Ed1RIhBDZcC",
+	"7hzc1KH2aAMreEA1dAofRVqFqxjqOl5FQ3hThEt28uS//1s4svge/BGCTgx1eGDE7+H3b484kgwWLy2W",
+	"bLOBRHZfRjssf33yxA41xJ/Vq11HvkTTQT9iAen1qXj88qE4/ab76eEnbDAQn/b7/UcRIF2YmZipGWRV",
+	"HwkIbBOfif/f/7O/h8PGCSza8LgjPsOf3/3YtqOTJ/h7592PP/3df2rv783Eb8T+3psOBMAloggjATwq",
+	"USHm6YUBWdT9xjBpcWWHR8UI34N67TiG1AZn1TkWqQhRbhbnUzrlxEyZylQi9veu3v1jJKwRYYBdAPgU",
+	"rYA10eA5+1XmLDRBV3esxxT1uS+enh38FsbKDHW+BkIjwM7AxqCDLLVc890nJQ31K9pffCHVleHH9Soh",
+	"tYwbop9WxP/gGwbCbt21AgUO53C73cP/zrnYafX4rzxgftCKWuU+baskACN45sYV/PXCjQ2ffRUMEB88",
+	"MYv85TP/V3qhyr9e8qjxj8dX89Nw5KsPX7jB408Pud7iExRAnhtdqGOZZ+YmmS+wVdiCwCb41Lb/8vi3",
+	"z8V+f7/joWRNUZhZdzEXZxDmWGBMK+PYo2jakKyLYDTN1scktWOZV+N6ApMjQICuQRA9X8x2qagKr29f",
+	"33WHhm8xrOZm8Cvbo6GoGuZCqotPDq+tAGWnJi92WWr6YPu5FiZTeXNBPaBKvZipHD3u/kXxp/8X0KMj",
+	"TvHuv3zaOxBtqN8KUgj6f3UhkvQ8JUTIxWjcuUlEBtFfSKa8jGVUUwgWUwl7KpehsoYlKQY0HC5C5A5M",
+	"s4DuDvm2FseaH9S+sSzHrZ52BzpEJzs4/CBuqwTCpXBBRB91WHIYI/KiLAiWUez3f/pf//dVFuDPsTc/",
+	"HDgUgdLnUIUVCCnwJoRb20lso2lFA1DyVa+GtFTrkgDJ46BmPSqrkzQrVG5LwFCfdRnEwhAyONyPDjRz",
+	"sshJ/ZXnDHb13vVim7L4X8wV2lCbjBpG5NJFKLpo3iOUA72xhmQGMK1g/RmIyhLxv4prCWf7B5/eIOPs",
+	"X6F/ff/gfrOD/SXaBXaFz78BsE+SWgh5SdZeTvjrTbCCYA1m82LN5TVZZNlorf8uM+M36wv5c3zDyle5",
+	"ya7Dit7o5KCWw7G5Nlcn5ccYLOG1uDC0qzfw6syVme8CYo39XDtfbnX9SG/m06lsbXBQDpjZBQelYeN5",
+	"czcWrsSXOO8W6pDUO7r3SbWjfrQNsXgLGtiHbOENaCiefie7bFPM0bgOjNcWxF22BMIxmXrom4a/Tsrm",
+	"4c+vHj4se8C3q71U3DKHm5wyCHz03ULxz0W+ULvQul/WRsqo59eUucofuNJHGUBum8FH5ioXSoOlxcck",
+	"Iv0ipjMb/WKMVUOhaKfCmWGiB8/42uMVjPea6h1l69vgUWiGPFJBTH1PxBibT1jpYIbBkHz+c8BJdzx0",
+	"gQnA+H6I6IEijeFsMpcfRlYflZTJYaIdq6sil3ODUKdoxbGqIMmA8mEBsIKGk5kkhnrq7q/v4kHQcRkS",
+	"afLGyMUjETvjGyBqyNIUh/gewlUMgffMKDemAH+Km7Su1VDz2Ycu6Q0yGnKpGQyzaqEEyPPZWXq+MAuL",
+	"LcMqXpqhrjTp68xWipBgc+irw7Ch1KX5qaRzNNTxQnMmwMhZT2iwpQ20nlYCX9GG+jwIxFnHVS0fYX9V",
+	"s11nUJnVUKfWFxtaGp1UNtvkjhbc+4FLCfmfHE+VjYbamtXVpTVMi6odIyDLVtQKqBItEyUdtaKWJ5ng",
+	"3xAp6TYd/lnbZWiyskvI/OrL6zv2S+V7KJ9sx8YD/gffn/AgyscPoaPVx4+rU6018+zFo6aHX1Ueflku",
+	"Q/DQnBhTPNUNA3HrckLLUv7y2i3Q03J9ahN4GCxUbVjlT99WWNfNpIWbppXNjC7UaAzK2/W+2rrK+Iun",
+	"pW1KRmu4am6cVHg7xdkqW9RQr8b/zvkrYD3dMsSbAgS2B7Wk928EbUmf7o5jyR7YG1DKCX7ZFKG7Bmaz",
+	"qSbYqJZ9hJ/WFqI+uVrwmpvB1lIID3znk7wplaVa6YC8GSgDVMEdwxya8u5hu4GvzcDxyKGP59I0X8Xt",
+	"+jW+cyHyMEttC5KmmqUr8wdAd8siHBc049UWbSIdEVflwLhzA/EUPlyPm7vCD9Ig83VjCIt7L/gmKN3T",
+	"mLZT+o0gbtqcFTLVvkpyPElVlqm8uQbyTEk92hEHyTlrNsGWe6iyoJQuu0GQY10T/1spKdsgpoOEdIUC",
+	"ab0uTFNasPPpOfoKalACsTvZdldyXeixymGti+W1XLV89XM0eTanPq6k5VXXIaCismKv3436ZgbnaZWU",
+	"NrMlvnl3Y0v/knJMN2eWvszVXDrYHDXf1fCthczS7xamcMQ4l7nSBcW9EriwJDR1cWGyxUxFZAynP0Sq",
+	"xexZWW6ndEW8+weIUhoXkgq4NdX8pX5Hs/cC1XGtFCbjllY/arCHB4wZ5vaeg6A2bjiE2pYHy7Iyu2C0",
+	"tU6bKcOcZWrWgKv/5Fg8OLx3X8zpDUGJY3Z1j9alYGL43yVmNuTG1Vvi6xeFabL9ky2xOS2G6m+vXogG",
+	"sZtlliYihSAupjczmVCEpIArgtLvLqfLHe5CnOoT+LjxJtRliaNVYZZnJeaymDZOh19gmXVtA2B0+qsu",
+	"KxzdpwkE9hoBW8z5YyXwjxT3+v3GvuyacgnQzxevXr0U9IIYm0RVAHLvPXgQUOJhs1epSIsmfPJTcNUJ",
+	"S8UKPK9g+oFWGodKD1YNV69PnjqXytKFVoaNOXFgkesBynpvlJqrfMDvDJhC4l6ratO9DjoIf3VzDIDd",
+	"N2ROVghn8P2WB+QVx4qKtBBnuZJvmqtio71K5c3f10h+IKT4y9MXX4qX9JFItStFZ5JlJOI9rD27RyFt",
+	"Gv9H8V9j4Nb8KB5qOJvHp1+jiBzTGyn/OuDP5Uzx6+wX9YH2ZMi5DqKJ5nXdypZVNXfUKi6ay3Qdfy3a",
+	"v+o0ylVNZdQQmJRfLpZz9KbrQCws43yuSg0kr0RUWzHJZLGrNHa1bZn4cFGvWpGbeNNyfsU1hPJTVdwE",
+	"ZCLMLXH1iHJkIhQbhbXdj5gbI4jxpBCot5QZiSq/SMcYhkUxag14NWT4y7aQiRZZ4eeEV4YrBH2Db1M7",
+	"AmfdIlc3+Bi8L1uWG61/3FTq8MS1tEsJr1B7jUoKZsNsYSoWW2eeF6sRkR6pktXiSbX0YaF0IrB8REXh",
+	"zhXFwOkG7N6bgAzdIpBO01GgIlfK7orQBsbxhjBvYATdyzxF8zqwTHwAUV0xVM3KiCEkspBn0uJKSVpw",
+	"ACTUQ+0ACUUbG7GcXCDu9e+S5BSfqCJfdh+C4ldP3yk7Z/0JO94hNg8W4xv+3v39ApsokfvtOqlFJk47",
+	"tqI9NYWbl+2ITJ53Wd4v8E2LURHnRhTGAaZM0vOF87Ls5FljeO9yI6+turyKr70LtLbvaDOkNuUOrKG5",
+	"INB0Z8dnnqfE13aon76jkZRC0pUe3xzBcOKEoCqpoFQyr0slJMqukZar1U8bRFyTN/5U2xYakH+/1vI2",
+	"1T9ICh3LbE0a+EJrSENR+jzVasNY17+x3nxb/XKls3Bw1e2LPMU0U2KmpEUbdxM3C9KFQvbF7rwwgewI",
+	"OB20BZEssTDoeyxEaofaVU/j2sniQuWlk5bCYsSZmhgWlsizcSRiYHdQgDke6poxF3VHKo4WcQuRWOhJ",
+	"WhD8jsmFXcxVblXCYD9yqLfqtuem4apkxMJC8iBitFSZbbA2VKyTJ9+KWm7kWzMU7PFlpUF+eBK2y8++",
+	"8c3jDta4327HNNWjhd2QOkjMGhk17Kc2l2ug8eT5yKqx0cmaHM2JzIkgxJmapuw2nucp6IiIZuGC+aUt",
+	"KJiyCqiz0G+0uVxTJnej1aYsH7JaDyQtxLkqyDWAM20vNEJ2w4pHcG8RShmpTgudRCj8+Ds7EsQ6O2t4",
+	"F+5NQ1Qkw9KKVItu10kDXbyyF3nGQtt+RSNnXPptC9a4viO3xc3Hn4IKvnagXTsqAlwTnfk3bKcu7IAS",
+	"R9oLjZZTOIG1zIWFTotOWFQL/h0aDsU//cgHcqjlDIug/9OPIsmXwmEnRyAyMDBk5RIByRfaj0ROLurI",
+	"YbVlKxjUQ11+Ay/VALZsVJGUvVzssj+enhKh+pqvjk155GfvdvLdgKJvuVB4DeLzmsqwMNgNpWHFtZVh",
+	"yYnXVBqWlvQW3b2EezVaWwuQ9g6LWE08LtN2VTzquGxbfOWdLQ2Rpr5G8k1knLXhp2YeCpf/9B9bUeuf",
+	"fty2qA2O6fkiK9J5tmxF/OARFjdm/8y6EovuGO9qLuD4Pfree4jNfCuxyBsAtvdwNyjO9Vb9kdlpq3Pv",
+	"d97m5RIPd5u3uRbjqrCtrpq3Y+0+XfW37POqP9rO0X/Vb5Vvl3RdP4tNJ88vmt93ty48NZ766pY04coF",
+	"xHBNsEAYm7IailnG1JeJmYxR4CP4yPlJJoqxyXMayhrvfL34ov+/4Fbtrv62siUnoaeuXoO49A3jkAkM",
+	"dKVi3Q6abRkpukOoEA5ykRWPL5Te1bwHaz+eYtwD4isTbSDKAsqeVGGZszguEdlBPHv6/JQRC8AFOC6g",
+	"chmIVq5qjBQkGgLuYUbhhCQ5eGegc+NGAt2/lPvrpIPI37i+PCd/7i2sHitrjiAnYHyC+3So6UXU/Vwa",
+	"pyon1UZsUIJxpFl3jkoNAKcaUyJo7NQBaiPFS1UXd2xPxL99TLgT1Kzd+57+MUqTt3EZF4rRs1ieFUFY",
+	"UJqwKFA33si3XLN5l3bGklWC61k4ktgxvv822h43uBFBdmcbxbpqr69Wg4LWV3xdNf5zirETVlcrwG4Z",
+	"mbYmjOdVSID4Dqk/WsQUnkArG+/CJRZZsTZs53bic1aIZKVAEGWusKdMjeg4ba8Cl9TkGwoeooHi2DVJ",
+	"sfwXKURk2WbTxaspsyrW8dlIjVWkeKi4wkarrSrmBGaSt9H35WZnGVWC2ljvNWAn129mpaeW43jXfxdq",
+	"cl4S4vO0mvbnbsMH/f79/QcPDu4d3j/sP3iwf10E044VxJGgR2tCx6z6brNqjE4HBUmTqYZNs4rRFkih",
+	"QQ5cOYzvPb3VAK2fL3Bq26BOWDZk6L6mDTHsOqWtHJKwRrCnjnCTglLpGyNHa9Fc1dLmQXDWpjCvOo9x",
+	"/HKNqFi9axqPOzo+GL1XEnyaq4iOlDIQcb7QPTr9hLu+0EhPQ01rYDuRqzFnezIBnA3+S8gkIUuD5Npy",
+	"Ma5Qj1RszFChB6GZMfaveRzAGJ1CHsqpB91Dai+MRztbaQWJyr2hB1ULKLqnU6fk1z1BfqJ+g3FGbmd5",
+	"3P7PcNT+oR90K2qtjnhLzo4bdrLQx240+IBuOvswSdyTEzcg/Ovr6njw2eNgONSIG9M3fkieWJ5wwvMH",
+	"TilDwtpV7yW5vOGunko7mpnr/c6ueO3bqAXp0qPxlsnXjUnWKPzi5WhKjtu7NmyDZ14dQTCF67U/J7Q0",
+	"Jauh4XWCdlaTq8QVHqHjPGD+X492jhgySBuCxouDempibBZZgsbbM8WVJuAUa1OMXN4YuS7aKKuTX4XB",
+	"N5NK3egjsYJZ45wES4BRgop0ZlHYNFGjy1Qn5pIaXQUIulMWoKOMOv6M8t1LcBls5ChQXQTDDoEXoEMc",
+	"BeLE9FiN3ON4qNtlmb3UFSoU7kX6HstKl+0eCatU2Vjdv/wvJhMLG8d9x39Wt7iFIR7VHWpFLTfp0c7e",
+	"G1i5Si4XParkcfHJry5S8Cnlb1UefOUfBHlb/KCWs8Ud1vK16GlTrlYwwDBPK+h+9fGX5pgX1P1dfFVd",
+	"VXr+9PQFLe03bmXp+Smvb817VTUE7powktRzxPc/uTZFHIOTap+FAY7rnLHQmft6PUs7UWNOKP/AV09p",
+	"6tz0RahSNviI8PG1rNpBI+/oHWLcykSNU4JAnjPEOXqHa+5ceLWp0M0WZRv44/yOJXTO5jINu2Ba8Iiv",
+	"v86h40fu7Q2+xi+Dsj7NZQBW4Udqm+UHFYjxzoK7Bi6iNr4QooB88tgWvr0tr0PcTv8x/X3CTbwtH9wk",
+	"kfM2Vn078GgCaF6Bjf5mujzytWObMPYJ0dGVdgY8PogjiFertPipNO7KIlNfp+Zm0T+slq2xK/limBcm",
+	"u3CO13SmdrQ7O/V91SeDc2jITMus8sLlfvfAikuZQ3xKRPVO3E/UADlBm+MInJflmjzeIjcZrOMu5eu9",
+	"FwMn4b+LgkVt3i69a6IMKpbSsvDauyXr7k71axicPm0OqrqRV/f6Ei+EXH5ZmfkOtV120KMWmoSRBiJ1",
+	"Ha5JNC6ULjBvoDJet1w6REL+a2KyY3uxLXtc6CfYO0S5taLy7+PTr5E9bm85K/1fuyWSlRbbXb8ZbV/G",
+	"xKyFxbrJPbd7Kv3JIsihbwjuJKOTA8m3a63DVTB96ykCNjSp1/OieObtYy4rqP9bTcuXsr8OGAbNct5u",
+	"Vt++CvHUrXN+6/xBaSwpEg6/3B9/Tq+TGJ255+eQg0vW0eDJhN8Q1scVrG9F789htj3FjZmwWy8g9v4z",
+	"FIPewZp/E9CEXeESNldOda35waxZvZsWk7nBvfxzcuqQ8W76yuMWvg9z9WVy6qEHK5yONfttWuZXfdvb",
+	"cOtjzCtiGWc9275j/Y+W6n3OJNjSMJYSy2OBk9690vXfd3riMSQq+bIU0rd9x5ahfBgnikorIn3Gvi8w",
+	"YAGFxM4u6b4mc2TtWVqQwIGp2CqhSE8wOTGqGBaNWQpZAGBTSY9cI8J/xpHL8AVnYeOHKqE4QhwjQjX5",
+	"ki5ioTNl7Wp9uLQoy8GhuW8rMqkRsyeRe/0tsORqt+Mq4yYUtoBx4+wJHKYtCzEziJTa71PysMvIhUfu",
+	"Cws++0/pG3Yb5gZSoYywsGTbY2O4e3ntgdgetsdf2huu6HJp1jI3jyfzs9iYdpBgKtamBgVyB+/xivbG",
+	"nsktsWhKGfH2sI/Wh5zsrxN6t4gTWeMdr0BC+NXfor3rRcemSuTB7DYu542Ky/9cpd2TfDlyEeKrm/Qo",
+	"XwLXL1QehJEXLjpbYMWoJF92CcxfYNngm9SF2l8L+0DR7e8PH0Ht+NjQjYcJ3rkBIklqRxUK3M6yFsCT",
+	"NJZObnaB0TcePJsdbT5tAI1X8KuveGDjwFBXL5iJ6nhjQQ5vh/LawA2hV3zQBCUnNLgw8TmErFqM9nd4",
+	"KKkWceVT3MO4g4nRVFU+QFOJw92Oj7BUH7SmCSRzB9pcoaPVQWxHSNuyk3U8pCL/3cClUPVm2ub4WpLn",
+	"aIp3bOAzPcvl+I1C1M6lq4lWzQyzov30+Ou94+OvS9csS2cP+j/9zX/Y3++LX0Fi0NmeE3vLFPbOERGj",
+	"FPA9luaLnABIoxE2db4PTHTyddlchRfnfCxh0sm4Dfkd3AT+os1Qm7kCG2sloQ6z3dpUMx02MVOFijuY",
+	"bZIZ7MpoFVV6KozpiYc4ZC6Os98XPu5FQxiN+xbekTmLl1ABfWxmM6PFHNnpmAy9UF7moN/vfdpFMxud",
+	"StshaVgixMV4GkKaAuflg89hkaUHuik41s2rwfxkAk/3ZYoBf1D2EnHZFxqmoRJHBYEHHMRoFyXTaJYu",
+	"KW5rWeip+6RBbDzYUWz0M66MpOmMVSSwXc3WTGDOWR4kS5UeEKWdCvNhrNs7RTVfgxj4sBEdrZpLei6p",
+	"EA+F+aKaGGMk2u4wfzeBzw+jnre7Ykk6brxdXXXHekTzGCst5GbWu8XAaX96P+N+P0SgdIBx6EKlIRi/",
+	"jPCB2JeGGB6Hh1iGGe2AhXhNQHVyTUx3mmBAN5kKMJNiopQTS9JbDlh1Mo4vMnstWzql2kYfMDT8fbEX",
+	"N8+4mp/95xVxfRsK263HWG9lm3OCGYevvHcodCUJ4BqfYZhZBAeaUAVgd102OLayvTfxtuKwqwN+ffz6",
+	"OWIcOVMk30x3bI3dUvoxQgaIuPITBARX1zUmhuZh3LnQ2/XxlzcL3a5amkLtfzu4zV2APNdFeK/GqdeO",
+	"dAP1bF33PpR//iVayDad5kYI8J2MYtS7vZl3ZFdHwjNZqGs8CbeDd346NnNVQfNZaDsocZBwaQZA4N4B",
+	"N/Dx71iJZduqxtDRyUJbh5FED6iDE2ofH6EPzPqQdnz2kDqC8VZ57c7BJU7QmGcSKzwQwyQHCDfdAKYG",
+	"abKjMk32Bsq3D0jGtoRdnBVsRiPenbgIchem7Uq7gpCGTIVd1fi9C1CGHwgxwtVHhLIwd3xhcHzZRr47",
+	"5zMpQVsQUYKxJrClaKjPUyw2HmuFtUMrAlqNJwvO76TrPGY5FstlSxiFtIsca3EyyoPR3JRTgUpnjFBX",
+	"WMSzMaWTBOlm7CCaZHOlK622TWifmywdL9cgD8lCOSflewAHbJ28voLyiEMLB+JnHfm1iSiR3eEQwMyb",
+	"DjyZEG6OTVUicTagbJIlqXkr1mAANAea+aY2IluuQHXJPF+OsIjT7icUP+4aSmfmeoRVScWH/7efHn8h",
+	"nu/3xbv/crd30PuEy7zQ0U5S4BLZkrS+oQ5hUFzpGz72zhm7FHZqLoXzzR30xa9c78+evfjqjnWDCCrJ",
+	"lOc/tAEHWIUrmIRoRRL3yrbdaExu71BTT0/LOkVg12IsRy7My9amABDlSISwhqyxSZ/njlKcHOoSXMWF",
+	"G2Ngc6JsT7wnY6B12Qnnwn0zl9au4yn+nfGure6ou9HVsvnkbDhyCo67LNZNg+muouCutp/a0TXtpHan",
+	"FU7txsVN7Q7rGvhStvxiU9fbxruW69GwiCu71rD7UY00qyS1QoS1TahOO1h/v3jhIvspe1LxE23imsjd",
+	"PgT/Tzdnu6/84EmqLqURI/1r0CkTMVW5irhW+SxF/PwfQFD5YUsL2SZyuObGYifGDtTqhYEtpgSS51Zo",
+	"XzcpHYyaTUCgnO3sCaUyt90uWfJnbMg+5+ulAhrIX9E9ST6EI9Gvxoeu7oA2xW5FRaMWO3Z2HB5/tePw",
+	"riOftUY2b1xrBkT0WXTOooZJYlvqWSykVBERVxLIQk2q7GFV8vQEtJIG7xa6pAi3X57FBNJmo+6Zns/k",
+	"59KmawzY//y3bq9A3vrqoH1y0CEmYMWzF4/EZ+Ju7+67H//5b/dOUbR59uIr8ZnY79OjHhQ+RD5tE6rB",
+	"KE4fuQZDzHFtZgifh8JSG6sNF1MDMhY6iJNQaZogZnNMItYI46Ooebv309/9p0uH+4ONQ9uYD7tOIIvc",
+	"oOB/KHACPktnc0xoJTzotgLpaViivdo0WcgMPmNsR/oSqhuK2P1czjn4IBrqchXKYUKBcg1+KWwHKi8u",
+	"CsNpt845OxDlWgaQovlCI0xfPINEVAfhZNG1MDO5E4lLSCeVwbqurF81VRb695esq2wevk+WCTfRbQ+G",
+	"p7aH1H754HPo6TSpPHuGXT6DHmu/nHDXp5SG6TPpd6/YVShdQPCm08eaYURpF8HcAdbSRY4Ri/y1sAV4",
+	"aqfoM5FY4nva7IV13dmpPLj3yWpvp1887B7c+0S0p+qqRPaX2miE60fsYTMJBoNJOum5bkx4r+YBrpEU",
+	"trHQry84PZM6nShbrPFfvsxTXbDrKELtBsNiXr86pnBIA7MqUvhROpTH6WImNSKJIhQuZmCCZmbX5QJx",
+	"s1U0bGccYziK0lacnqVZWiy3p1eiq+fUSWkRq/3wsOxo9Ztqx3Bn0bqsL/+90TcEG7+2+IoTWtJEtCGY",
+	"wWmKSC3Q2DqkV2y1uYYJVcDxpDZgUJAYfKi4P+RmxQUATIIaWAhbx5vrnFGTjQ6W16+Ot3eZ+HZGSFXN",
+	"i4MV+ynWtnBSXibP7lhKMvwjhpZAxaC7d+8+KCNY4PkdCOCeWOXrDzAiHHJooxW1kGrk6WwLAH0cAynh",
+	"+etXxwMGEIZPKidHyBLxVCYWtygsoQ/F878/fNulfxyU/3jl/jFY+Uf73/zw+990v1153mkstw+jH8E8",
+	"G2nOQabIbJPX0r2ldwogKL86W16vE6ZJq0qs4YGIfFHvygErWURIbqskE67CCq+OVu6KOvdbI10RL7hB",
+	"yXuPWLODc8Z9cm0YbdD4xnG/fyb0e2Zs+5G4fOkyeXvlpyCPe7cy+sEVslIOA+GRkI85FlfC0HD6f2FV",
+	"Njny0Z3M6ek1qYVnh8gnvbu4TeUw7AJXncI7PtwFxhu59h6r/t50ndVbWL3VXNX8KjTFwb3rIS1KrhJ+",
+	"2G8AtYhavGBrrqnU3VKizXKzu606vfBmIsE82JpJkHyDYhzGsXKdN9LiaL8j18HZEnYXjUiWi78zIa2Q",
+	"AmHf8BHIQ9wHbHe2IDxvLc6UkNqgyEk3QgnoX+oSaKHFNlIrfHUCIkYK3FnSZEQbbSGRiz2qRSpQuHKn",
+	"MiHxnez6cW6cE9iWjUhSAiWaG1t4dQQ0D/lGVZc4pG8HbeN/LJ3oNyTsU6IKB/Gy5ucQgmvNKyduGKt1",
+	"ePhucWRe8o1GFjpX42eoJ+/oB4EPS6MIq9osrJR+EIrRkIWA0RYUFOtQZh37RZyCVU8qKHL5jqDRGxMY",
+	"HPtlPIPFfL5l+01+p8a1DEznt1UGfFuo12AxUPX9GXNdyugX6nk1fGVzvHo17+tnSHlZWdRrUDCCl/8n",
+	"ydiIPCIbMvnL1FIShyetn7Xk7m0R2HNODt05XXkXRBCS89djgmw+7cm6H6j29W5lHG4SKK2u5hKB4GrB",
+	"fVt0R5mxdqfunMNnm7xQt32/g2828rnMNMdfzMvCzFsrK/Vizg1+BJctvNPM/UdgMF4XXotwdPWtqJLh",
+	"goSnzh7+T2l+hk/oflb+xg3mv6VHzC4wZKQ5ZcCXlt6SQG6/oAaDxbHHaiUM0wW4NK4kkUkwxQoFV4ll",
+	"+7jIJlqtmPy4YphPxKeiY+M3I2vK8M8y9oMM2dvWFuQ2T1wvrcg/O4VOgr+fUbsNY76BEaCCKrBTsrfr",
+	"9Fopo+xim3W/ITBFyZu3u9XDq27lWj9x9zAjArgTDzlm7t8lYEHBIAEOaOCO7YVXwi7SzcpdcdPsxXWX",
+	"QYM9t+Q2d6xw34ngO/Gaq1nUxneDSmO/2EVzC0TxKgimQsUJ2iYV2ZNCakV7hQUIqDHa6QXXW9UGEX2w",
+	"6y7Mp/tQl9/25B3eSNeuQOWGuo5q/cvi3T8IGaEFXskEZLzXeIW+uQGtujtvy6QzePsDcZI18Sa1daCw",
+	"3KOylDSXGq/3cvOk6I1XeHC0m9j8K64BVcNFzJUShbqiwc6VwcKWVPmtyE0G0YYY0pwDaxqreSEKeRaJ",
+	"LNWcNCaxaE6ep/JciVwVi1xzUcCqla9qHwx9H38YDq/6/S7891P4z+fwn2P4z2N4uP9kOLy6/+Tb3zS6",
+	"NV6B+nBDKK8byPg3gcdbE3cRvBAoQpACbhYgdBoP78ZWZkaaLhFktw/XWeuGtGMz38X9AK83dYBjap6n",
+	"VeNcFT1xOjWXGoOyEF0Xg1rHUjPeORZnxlzeLROLqMfIFYbjiVSkzcZjAJ/dUMSBPO0RhkPkJlvDDzBZ",
+	"I7UFBvzSfZ6lY5jq1KRjhUVKrcWSlLThkN4NxldETijTQuhchZkgou0MC4cHB75wFQSuiae+yC1ajR3G",
+	"qsfYlLniEAbXxNmSAm3MIu+qpbJoSGzAX7KqsIImDi6QEfWyLgN9J4pPGQsZI7NhoDh7JvZEUA5+u/xG",
+	"nKUaVqrTE56p48vczGVaXcCCnQVAYLgrwPKDEyRS65fjsH+XOybLfNnrHYu2HxzSYf9w/VtsFae6FOKZ",
+	"gqRts2g+vKKNA4p40yJn8t8+AXgdttXdg00pS81AV4453IKI9s3UwCJg1TUEN1hYVTK3Iwzz0C71mLK3",
+	"nd17kaSFKHKZZnjlmkut8iYPkJmVDQpA1Yf4ssIMREzulMFw0e/fHaMtH//JKdjlZvEbMG1+oTfUj8iV",
+	"RB6Y8t2KlcrRAlFdXNJaPNQ0HpmhmV5lPG0aEqMyO6qzC8qyHuqVezK6PQ5d0sThriTRXHqTB9LMVOeP",
+	"zKV+bIt0xiGXO6aFFGbeTYA2FLdRutOADWDQHHj8nDlCLCLxRnwmDjoU4RtTJDbUqHGZDkPdnOoADdPb",
+	"LuVhgCmvkFmFyRtRaQmapvDtMnKbmZqEQELGZgFcjHEmXAlL/HANHshZqrcu5OmUwB1fH62t88nzuI54",
+	"eB8hqFVplP0DW9qWgylj/7fo6ZReXkX95y6jcuWCVanPeANJvjTpjQpMVsKWYfM9XcJ9cSRiJ8z73Dxn",
+	"nFqMcpXFog1UWVWSFu3jXE06e/hfvJNLtA8mJCzEzC1V9IVbwC+5iT9s14qHE7jjtmx7G7NCWGTpetv1",
+	"LHBSrIdy3pSpcINchNrO74pCEBLaTYEH621UEuxZO3Tun2p6fd0ZRPu3krfg8xkCy2t93psOYclPdr8Z",
+	"vjp2XFjIhmvCA8dE4vf0P4XprJ4YZyzZ7qjw9Plbb6Q4aAb7cOsQJNpvxgcpzLZDqW00zgK/r4yxaRAb",
+	"toNSEXZO6va51X4Tyss4sFWaiY+ZKUpoMwAtO30h9vfv3js4El+aPCmULYb61Ym4d/d+h6/ctLysy22P",
+	"yjDNRBYSWCXw4J54jIGvk/SccyfdcIa63e/174nPIAsTYuoXo/wyXklNcMsnkOj3XH5Cm7DUupk8E7ma",
+	"5yZZjDkgBktn5TM7OkuljcVPf/ef2n/6z2fv/nFPdwQ0xg3zVnj43nIJzsRnELMLesBPf/f34fXQ2Qv/",
+	"gH4Wo3GuJrHwCajh9cGzSPOwDRvBVGlsn+Ho3Fjf/aP4jaAG3/0jtu6u1Rge89uwTPwmfUSRvnTTxuI1",
+	"iFvvflyMxj0ENIIEBCuXpascd2cis2yo7RThKieC0Ne6Hn0ND4akbPdMnhlUk5eQejse5ypJC4aIy9X5",
+	"IpMF64KnL15CS4CUnOa2AEWuTHb1cbWk/1Yu6zK7NbVENeuzW5u9xzeBe99N2LuZg3pHEdHxv1ogUiFz",
+	"r+KQeAu2WzZNbh+avQFp6Qa5ZVXu2wRj5Y8uKu+gji3aJ5edCM0a6Wx7DP2KlLhxKKOxg9FssFk3Xgc7",
+	"fxDcH02TXstW/CJgWl0qrV8Hrh4ucyXkzFCEn5tQLApjOre3UsxqtqTHwqxO87FO6rTozeQ7ICvtMgzi",
+	"iVu/nF++r7t+oXMlk5I2qivwdQXmM9XBWrANwcc1TWWC2oIxBWOapGx8Em14zgJchOYvoBDc6k2kuA4H",
+	"fCU0IJRCcE2C3fdL6jdinQpXZ3sNh231NNUW8FopKMiV3AQ6VNVGm1LEciXiwsxHIPewypfJ/FzlMfqM",
+	"2EZUF07RHOCNC7Vcv6H2LY6c6BL3RMxiTzwozQplJqDHia2YHPA3LzgNNTfhTpOX3HgrS2FlqWTOl+RQ",
+	"t+PfPn6FFQjoA7v3vZYz9XbPTSwmSSwtPJwsVCb4ZppmKrSWCLTsGkFCQHuiLgmgQ2pxEDJvk1f03Tpj",
+	"60RldWTyyzWsFy5NWIyUIp+tKO1wMNwzUxRm1l3MxRlCqJF6Hjv7Usw5O1rE9OZoMY87R0IONdCPq52K",
+	"OBsatmNZTaW0hQcxwBXYMuakQnanro3K0y9cg0CludK3GSB7Jq3KUn29rQb6/dy9fEOhqFqDpBmkwG5Z",
+	"Vo2DrkPpoiFPoDDijVJzkWqQOhOfiEueB5iTaEsRpIQLtyCR86A4J4sk125nN6fbXOZypgqVb7XAL/3b",
+	"8Clcs9sbfamBdVdzkS/02PlHa5JFvlAld6FCswIhl2dkKpVa7Ef9ft+tCJA/RFPg+yZLlC34BSxnAmvc",
+	"7By6cOUEdynzElYhvLZsQKVchb+zyk3wqxpQvie8ygDDJdv2BqmckfeomPhe1Q9BT9zVALUGVsE2UMsp",
+	"A4S7yOdEXaS4ZKKtUaHd79QQjB2okT9auwIWW5WpNbUSvjCXDMZGTftDqxD+21i1hSsZVwxnCysRFloM",
+	"+1674y/DI853InSWGUxcXId/7IlSSOZEBAJuB0IKW+QSqzvApBBpHFoLUTjHak7VdpY+GbgCSRCJOB/Z",
+	"7xYyVwl/lxl8HATgszgyU0FQe9dvbR3tyvUTgFlF7NrkUjYoGjQFyEdcy9wDy6c2WAB0wdgjCpa3Yhpi",
+	"XXciyqcDSAdYDJmLmUlUBuMwajJJxyn6hZfklmvHEuZ4Bv8Zw39wylB0PV72YyocjlPmNgDyAUGgI65t",
+	"gKLU2OgLlZ+DZJUWFpldmNfkttZvRA0lIWr5pccw2VWUIQkMCEgNCKQVtUA4WPa3FRkqVHfKg6k+fRoM",
+	"rfpLgKmw8tOpH3T1h2dm9dlTe1LOp/rTw5Unn688OV558mjlyW9XnvzrfikFbefWuQ2nyY4OkArC1wag",
+	"iUXmOJX/gtS41Dqc94kvWUvptCoJL+FZSmUZ8GXbWReRMQqFvNUXblYvb300nD/Xd6yLhmtCtJ+iq0sr",
+	"EMAmMs3osIGuKvy52hnbftcyfnWZpKmUB+4SlVT277raxcFmbW1FqdUF3lxRIQBJrjhtXGg+b15YcrCC",
+	"bRZsfmWuTbcZ0m94KhaLNFnFKJDdycPuk2+///RtN/zzcJc/9w/eNkbyBTjXD1kvW92WQD+rqdMkC6B2",
+	"dxTo6oMQAqKuoB95Ld69Bn+I1z7q49KEvN/3DcPnDoDJ41dbMnA3tc+xrdfQlHvEil/w5Bm3XF0dRgG/",
+	"MShv6K1x6vBvXz+PxF8e//Y51KfjKAjvdvH2AxKWMeJiqD1MKtn5NZBOWix7IkYCZcGj9B/IXIklPnx9",
+	"xO+g+z6miIq44tOn14upmokc/CVU7by4NJjJjEYyXbDvB2PeXnNJnULlM+QvOEaMYk3PFgSO9u7HBfaP",
+	"bqYpdGAm4P9494+ijX9bIRPsaB9TyScTkP8u1CiZ0GwkNg/iVjKJh7rmwteTVKeF8mCblyj/lgsopH1D",
+	"8W3a8MJTRu+EUQNgf4a6VDqBwWeqRLSqYrijCQPTvtkNs4RBOy0FTRpGCznUbBjy++8OiQxrV0htL1Xu",
+	"rCe48NBbJM5AZlCMeA8tWPTeDPXu7htxrffGlSKintZgFHvWsCVqvucmt+DPqSWQjcbb5YKVx2OLG4Lf",
+	"PHXnK3QSXf85vedumBs6lwLKX531n/7bSE0mIHZ/o7Lx9Ke/+Q+neEsU00uZFuqo6UzseJeH3q0aZJD4",
+	"TLxBL+QWjGHLTL3r46d8zMkWrc2MhsoAMs/Mdbv1HF49hjd9xZMb+cs4RW8bx2PTagNT2974QNfPK5XP",
+	"mgPB+V7czp/kQwZvJ8eR3123kfXkaMcYSpkq+Nz7OwL/xepS1w5LcFLDlOu6q2NtKJvbDEcIjbJaydoA",
+	"SWJHQcCZTVYjNJD3syeJMeXxeg/lhQZBgb7Au5Y5F0kOtgnlAqJA9p4+Phb79/sH9wYH/f374t1/ud/7",
+	"tPcJY+CzRJJavJ8g+qIYalTZB4Tj6n0Qtg1/d4K8XXJ/sakAhlZaDkDJT2fKctEolBlws8X+UJOI7za3",
+	"NHCVM2ekSHeTj6fGWIUuuhg3LB4E5ZZJNIUbMj9XtlgbJ1NsUeN/BV5gqOvpyUGuWiQmiyxbCiyikKFW",
+	"WS4XZLFCSEfwfizaSo6nQ00FHCuZXFJIi2LJuJAarvNcyL32T3/3n+6++/HrDjSUq7mShXRgSO1KvQOH",
+	"RjnUWJGLFFwFtwa6Ztp27+q//9sO4HnOIvGn/yY+EzO2IbqISvJgxqK9aJ/Aqyf//d+SO5NLRIBPc6jh",
+	"JuBshkwiNCgIDPKc1+Oay4qiiIt2v/fg/j33dkeYXBxEQ/16mztm91iWod5OGhIfWhi6oVCxnbMmgMdZ",
+	"TahsRO4jwgneFLZQc6+BI4mWBGqF0gXbU6o0DSdya5V856xNR5i7IqY1SFKP1HmuSH+Z5EolZgZwyEAo",
+	"ZeLXZhFqYwKlcwfcuAJrsQWWxYYRrLG111ptuuJuKpG4GOGg2Pt6EWUURravEmTNZrDpdlhuihrEU09h",
+	"OT4EshNR1A58RXkMR0IrlVBm1rpIA07P8j+PXNJDasuwgYj1zhKIEkLyzuT4jbjc6Kl/n1q9tRG9X/Q/",
+	"bX6z5NOMZI91z0Baw+JnkVC9856IZ+d7z8D4v+D//f18Pvs2riWncsLUmtTU/1P3//zt9/vR3TUmq69l",
+	"ngIreg7iyY5yGGCEi3h/z/7hIKb8kgtuTUwWehxiqHtnzOmjgYB4bhHPzaXK42iobfuqA/Ut++9+nMmr",
+	"9lUkrkazVHf+MN4n6sI/sRk7k1lWgcgmx8xQVwwLR9wFyU3gTxJtNjybCTmA9vZ7/V6/E3YvfiPG++9+",
+	"vGrMfulvGwq5v2PuwGb5nkPfx1CwZ7zfSFFfl0bjmqER7NIxF0vWSzGDQ49nhsrWsNm6AhM5NouMsPLO",
+	"FK9taD6cSwuC/aRaAmCTsZBH95I+5L+e4Pc0di9f/xy+kPUFcG+UWvKepWi38cZsqKKRpBMXLDZv2v9f",
+	"PUKQ+/67H4OAbY4R77hg8V3NGj49ptpXBSeNMqGBX2/ynVDgn9MNfDGhHcez/UrefrIOCpHNaw+37w+/",
+	"evQDJR6X2crOCc1KmAPX3NLKE2YHbYivDcAgQvUsteF2oPMKE7ZAR+sFi/xh8o2aNu/WirnajWGPviRM",
+	"WUQejbmWyzVvlay/Ph9pPRzd2myk2tENSWlDjZ6V1KdVVKqARtbcFZ6+b4g4cfPyna7UaHMczAyuKH7T",
+	"FaOtYcGeqbFcUEAHwettDku/qF0u2x78jclprdXpXBNXtcJTVi9q0I4wEbP99PhrVN3jsdFFqhepPo9F",
+	"+xiehrhB4YjC+5kbIqLk77e/qH2TT30zFYIJmqzN6wagYTchpHDa2+tW1b29xmVd7WKHrb0hIEdVillT",
+	"vNmz8MuwVubW+QTXFPD/ktPGKq9FgoAFRD9qxvXdQdfyddehHq3/vw+RT7sL3sSmqzQsQM22SuRG112w",
+	"kU+FRtelGggJ+XYrsH9xPSiN1xaVZUJNTrVI0DxaiDigkpj0dOdl9APh7GuP1AQ3Wydiu9MKwtNKdVas",
+	"HWSHug3ALEaLeC8Yai7ivdr7HhjWQ7cQ42aXNxoLKJvOTMLY9tAcUTE+XBu431kBm/jkcAvI9veGn93m",
+	"lncIlMFhbmIX32DdpGOpkzTZBmOixiqSi9SqNRVVcB7KVWRi2/6a+j5AEnpjM1zAitINGxuZySsuskTF",
+	"oEYYfLDOCkU+BB+vQJkmhcy4khScFIbCAyghLDSMVtHUirFbraMmqIEi0FF3ihg2RaO0uBSy7BH7sG/S",
+	"+Zy0ZJLLMPPkSKjZvFiWx6C5bMxiNpJnEDnZ4IH+zz/86uTxD2U55vGb7lhm4wW5PLwjZkWDahrdrtP3",
+	"JcSuOxbf+Bfrx6JsojLPtZTh6S7yhMzbsP6kNFa7eKakLboUn2qZgGwPzFBXf+j37sXip7/5f8Bfyz8c",
+	"xPxzBT4bCwgMNVqfSJK01ZtPYLgiHW7RfpjNVJpIoQohs14k/rI31MfT3MxkYc7znvhc3L9/KNoH/f5B",
+	"Rxzs3+v0nEXMjQ063N8DK9O7fyRHnxzqVUNZYAW7AssXEbaQ49xYS6fDisKIzJy38a+hPn3UIbwxW+Dj",
+	"yjQ6kcA7AudL30N5oEstTh8d8Q0lh7qkJzNx7AOzI5Di6JLxxjY+o9JWYqqGOvbUMDK4T7ZXr/PGq297",
+	"rhPnf0Q3Y0DVLmLLm/rsYgZjk2cIkRv4OFWesxcU21h7hDhxFEv1iVRzFpQ2FZYzw/wxzBaZymzSxKZc",
+	"uj4ZMajeIiKLlYfSilT75RiVj+NIYLnAOib7JL1SFMzlVxCqESJxjsxkNFMSHJz16HGK6e4MxNcyby+B",
+	"bP75b9/947sff/j//vjDH9oHf/qvnUj86b/SsmC0N0wn00Q3AsjGaJFpeL1MpAvi4gWJGOX+RSItVF46",
+	"Y6VwtQRFruCmaJfWHbcwf/qvFBUHBauZYbugxQS9ztpomhRUPXmCMWX1afJRGmp3lvAklyMF4k4LImtH",
+	"4qePqpltmkolMX+gf/HfB/i/S/98yX/Tc4v/yzUGK1uypUrludiXNAT/91N9cfpdXvxV7dnK3wcNH/3r",
+	"2rOVv1c+qjzgkob+75cwrxeT5zirkPO+mHst62YYG56iBfOEiNmJM8FM0iyju6tW+gNtIRbKKG5RS8oV",
+	"Bn0btao8pykpqO7Oq34QVbreeC/x6mxXtGL7JQJX+iRVWVIisJZ4rrxuH3TBatCq6pKCP4h3N18HWqmE",
+	"YkLdxVcYLBHUfLm0y3BR4n7uK20K/hIiQs9VAs4ZfJlGUa0QKuJg1gNBbdNa+Qr7yAyGmlKYGR1P3B0I",
+	"CXcgx9xcmrJJuNiMViJBnzZqLuzTpkjVB1ASP8fS9XYutYUpEAIg3k+wW/f7pZ5S6rzRRgCet02E5ovZ",
+	"3cyusFtpsQ9TFGvjl9fXLeKWV48h5tSNFzkEmMJMaMZnSuYqf7gomkLu4bHJ0z+iZDQQn+O7ZOEYI6ah",
+	"Q1EUCD5oBxVoRIwTQv12ALQSI/pMiGsKbyAcJqdo4S0F24H9QbD1VdfNtksghFzJlhQu0K1wSKUWMS2K",
+	"eevtW8yAmTQgTWD/kBysckqbtyHkIwwe73wf01MxH3rRCBPb7FDLys+c4afysiAM1WkWaeEFzmpW/nis",
+	"5oXUYwWSdZaOlxQWbhWsktMnCeeQmorEPDMYiK8vVG5VEMht8eQt9BttLuHW+OohRxNhk1JXgDaHeqh/",
+	"/evHQZSRS3WXBUm5vV//Wjz046sADwRzoeA/jIdKxBi2PU9l5DLmc5+lYQUcS060my/OstROVSLOF2ki",
+	"ERK4uC6wnMLQw3gqeEJLiXHmwMWGep6rsUoUtsnUh6zWrcXZsinsitGC2G5OCQVDTRvKgXa8yqWOQzFw",
+	"jGcLgpkPwMfV/Yu/EMeQUKjx2VB3qcQvXVNcVChXwmr5BmKGoddXqXvq65S2Y1JQB8KbKmNg8ELI7BI3",
+	"LE+LwlchJTFTXclxkS2FTa/EBPGXgPmJJD1HqhWiHR/0Dz7p9u92+wev+p8O+v1Bv98j++K/iTsD8dLY",
+	"4jxXp189c6dkloJGhXVRbSSsgWboXsMXEq6RasuiqBCP6PB8E4uquh+ZxEsgzQqV96Clh/S5VbpAUGBk",
+	"ICJ+xWEw/yaGBrG2mRhjfUW/QJYSdcW93iedI1wXkSk59yVc44O7g3sPBp/0406AOc1jRiryWMADhFfW",
+	"cpbqc2iJjh9sV6oRQDhZRuKw3xfxdwuVLwewiTH9hg/KHLgebHdpOLVUgZCWaYp3ZhtYjUMbiAgg1hI0",
+	"JDheBfF72xMnhpCdpRZyPlc66aKaabm4vGi79BHgHLAjmJXjh69U4gAnwZpBHlW+Qq2I0yTei636LibM",
+	"ZIfldUbOIzO3QhbQ1sEf7t0VXbEPO8/bPs5SpYtI/KW8kKfIYQk/KlFJxFuOuSS85bgkgK8Jq4ZMMk2U",
+	"HGCdQazGKHnTUytilA7iI47BcBWO0XKDqwhDgvdKT5572RrgCCAahjZ/brS0BrumNZOxLmghCZPZ80ql",
+	"ixxZclnpMALCVSqhrzpiirtSDkkWMU71S1xvOs0UxieePn78uHv/3qEgU5PtEUdgqhzLPF+KL+WXogz9",
+	"WzJFk/EZtygxiix4mD4No8aLgX6shKE4dh2BSCmqpjI4MWW2UW5M0cHRg6krdhYQiecx1SrDGbFEJUie",
+	"cKdG8IVDJ8VCKnaDuDUQKG6hNVqIE59izk3BIo0zY+FIgnifZUhoaEkgWwas35iK82JQDvbmqByvyxxG",
+	"6+p7Ik9OzJiudb9mJAucqSOmXivs1CyoIUJJT8+1yZWbDGJoJQa/hVlGnMmeyULlAi5gvHdlkvAXtPXI",
+	"3M0kkCxs5NPlI76zbOSsU3jjYwwsrgRSUsk7BmJfFEZ8cigenh4/fSoyVRQqtxGzc2KQPRClRvCfAfyn",
+	"G0c0JZmjmsTGB/pUmJy+FW2SaEVcsiqwKbzWKTpyoGUuBgGtBfUgZK54+xN314Er0w71Q5GltmBqlFqc",
+	"5+bSUxrhoJc+C+J+MGD3hG/suDPUqaV9Re47l+ewchJ2SAsKwVgOYLFzosoBKzaxaMO7wqZ/VEckUOKA",
+	"OLst0AdxeqxudPCYwUKOF7k1OUe0z4EhmIXF7kEc1eqqGPErlRoNdFXkFpklvN0JkiixMjlddtYhoOPL",
+	"+OYRzYJOBIOQF2pmo2p35WZ9qa6KY3rIAfNTaUdgiIvxbnfvfSHtc3jY6YnfKTV3K+Xpgef6WaUXDBSF",
+	"ZspGRWpFkS8gu5HW0uE9II5OHGxkh44gfh60OkBbfCyMxvXPpJu5Y6XtuLL3LNogBfORRiOZhYU2Ym6y",
+	"jORI6ANP3EP3c2qFmcvvIIneX8YifinPlVuxI6SeYsrklY6VK3NLHNwuFGJP4L9I4ybIf97ACPo47PeR",
+	"7pHoiax9rFKacwUZvFEWoMag1h6kR+A8IyGdG3OoK+5zktdLYT0KlAbboXzKy6nJVORPFp4PHNJXVUkE",
+	"GitVqpATjjOZq/Ak076CfONEIKrDwNLOCnS+t5QTz/ScAJRGYCc0G+JuqLsNNekbsNuxyM2iUGwF2UHR",
+	"fEiyEhWeIbSvoTY5oRZRPwMYyA/0h/gBt/AHEi6s+IFFkx+G+odut1v5//BRqL+KH0IODp+izEbMnxl2",
+	"VMULL43nEJKyhwEoP5Dqgt/yJgruK9SOxQ/i2dPnpySc5UwJP1T0u7Y2JNuQFNTxQ3JiJOuGAe3YKGwh",
+	"4mGXNBhAy8FRjMLS5xqWbqyCC2s1ZSniEompLuRZppyoRvOrKvviB1BJbSEnE9wGeGipPjVVq49KKau2",
+	"rljeOpBd7DYzF+25csCIpFTLfDwF+9j1q3DTGZM1Q/xQLQYDw0WhGXcPBruw13SB+gCpnliZqdICdDbU",
+	"mPSem0wxSTvVXY4LOBYD4QRalZfyOCybr2zJNDzUaSH+GjIp0JCKVFj5IKrGXJRr7FviRUiLoYZFTi+w",
+	"KV2xrfgW3SHgKjVoBO2JlzTPNmnkMhvqRBaS8wx5ORhnDDMleKkRpcdzBVdpJTy44JCRKDg6+LI0R+oJ",
+	"Cu2I9qYKL52eX++SlWbI+3EZkeuQzAOjIgMKFw+4KpQGih7qBmPWYKUW0K9/DdKt0erXv2Zf2gw9jsmM",
+	"HPZu3igfZVjDwhcaIu9jTjy5AHUxS5X1kjS87cw4mSoUJ/O/mCv98OVT4WyDrhKyw3eQzK/LmYOiUJoN",
+	"B+L338ZD3Q5WAvVNU7CFBJVelatBkznPZapgKENqC1jqhw7iJhIzmYH9A46k0zPQzXxh3qigmM9hf/+I",
+	"1KQ0CWoCmQXQo1sm7JHevtsT8d5UyayY/hHEzz2gqiX9c6aKPB1btjzsmbnScp72lnKWxUONpiRtuJN2",
+	"7FYNV6HjrsDH6GJ19x06XHEXNRp2Hhzeuy/muTnL1Az0pTl5ElKj9/jpb/7aGh1HFFcCoVAv6bnz+KWa",
+	"ppqCHyUSMfZgYzYrkRl1MlFYNIk0E5SVJSmcYMigp3CQYESfPOjv028Ir4TkXxDVkNUD0mpQrNvzN9ze",
+	"QT24qR0PW8OW31IUUfD7zhH1fnz6tRirLMPzu5elWtk9FivwfxT/NYZ8P34Ee6IJC32/C3aJRMynS5uO",
+	"ZUal6CjhVoipkonCZcbH+x2XDMQd3d/z+Gc8nFJChPFQ165y0Kq445ojaYiUDUiplcV0kCakcMU0iMHT",
+	"RM3mplB6vOz+TlGCLAXlsG4+Sy0Dj6FsGC49NkT209S6eJmcdDnGWov3mNSeu+Mh7FIX8ioSlzn67Jdz",
+	"BotiZSDAMJK5AiHviIjH1coCV3GWdbm1M1DWciXfWCGpPpjLWWaRuV0C/Yd+eSdeDjWcuYiqX9GxpTcI",
+	"2BWlzbRcI/FGLdH+cHhwALz8Xr9P1mhg2EM9bHlkOST0YcvfOzErNaM0iY/YHb+wSpzDQArjx6xyiPTo",
+	"DfWXLEGlvtyAtzFhQ4E5kJi+s5Aj5XipM/6rLptDuk8hS0qKcPmMZlOmy15AYwOy7DeIb8Vs4kQWHGFv",
+	"+Xrhy0BaIcXZYvxGIQvmsVnRdrorFIyCcaIrWMhC3Osj3gsaPY/KwmgYu0EGQ8f9alLnuSqsuMcZ8lCJ",
+	"rtNzs2ZgmMIEy8OWhIDTRsIuxmNlUc3B/YlY26YARlc/67uFKaS7FvmwspmFievp41dPRJLLSTHU+D/d",
+	"VBWTLrh05Dzt5rJQuFhd+tp2+5+INoVHleEYLJ0jfs5Qx7DEmIocO47HwfDFVFmqgueDL41W1huGLtNE",
+	"ZUsUNzqDsKEuN9cm1CnYozsW7Q2QGF++dqJmMtUUiI6scKh5ES16qSNSQoFWENJaJfXvrYJuaE+tWOgi",
+	"zThkB3uFzSQbO7hj2BRQfv8S/UnIlaksGjzFf6qjy8/oGbftFLreUL+U7KPC1/FfTAZ4PB8wAzpRRb7s",
+	"PpwUKo8pDR7D1Ur0SDvUTsWkleY9o0PqKMa/7YxsJDHQLOl7RjySjvVVDl4HORVZTlFUklnmTS498dAv",
+	"eRXPNw1EB0IVwPXHFcTzoI0m8YiWAU/uXOVwacO4B+JMTVOdCC04DMAKyZSD7gsUOIXmU5UW7sCTZRB4",
+	"/rnSHBgEpjZ34sjqLyAipmQ1tQgZThmFf8PBwZ7IPizBI6kD26FoO2nZwAGCns4Vif8s1nR5HCbvAOP1",
+	"fw111diM7aQFm0vFTM45bzVbeMmXhb6ye4sj8vimPmrDhlGH/+7vRezieuA+3d+7Kp+6JxDn8NO/+/uh",
+	"xocH9HS52sK/5l/Kp+7JHw6CZwfoiub4Cf/9QXzk46cO5xn/8sQs8peYRHyvfJZeqJfP4qPSOkp4gfF+",
+	"98DyO4CYsH+Axs397t3K07v49KD67gG9e9I9tPFQ+8cnh/j4sLsfvny4Tw33r8J2+1fxEfF5WytRyO9o",
+	"+02jY57boEcn8CRaUd5p+REP0p7QsyMfxjFXrOfG//QfubXni6xI5xlkpcf/9CM/fJRepImKWfO4THMm",
+	"IRSOyZ+Jp5eOQVpYlU3w7DxBsDMqOLywquIxgNNhndnTwu4U8Dp0/NKbPujJUPMs3Qv012Nw5RxDw/AM",
+	"AZngpMadwYoLYor+fCB4l0rgfDOlcDSWWqgZhYqS7oE6WIVD2Mu0ACn9ggDy1Qwu7YpbAV+TScKHDJtA",
+	"VHPpLdhnudTjqfc2Y15VZs6HmHKUy3HBCWF4w+73Dnp90a4xH7rtOqgevHIIuSKWDFuUT0C4oT9KKYi2",
+	"HeorYfp7LDAeQLAgjuONglJQOBPkVy7mMMZumJOVQRCCYiCgEWoxhqjofDLKbQJJfjAWvIxUwuQSiVIi",
+	"6lT2LmiEGoDCfFytiD+JfWZ3TLpnxJES8G1lCTjJ23FktxCM6mQx1JQlZoxK024tgMQHQqtLxyqhg5lC",
+	"1+BR7RIQVimL7yL/d/CusDNxFQ/XLXgF1DkS60GdYSghrrNsQnWuTqJxdOSNrA6RRvg5BI5ZXxJ82UWB",
+	"DI1KiSDtX3qnNSARwvtIGPi64MCEMJ/HL7ONw6ryMTXK4n6ZXBV/t5C6CPcd+xhRvJsLg4BQ1Cwz37F6",
+	"T6/YxVnBv8dH5C31kImxG7RfdBzwCOZXaYShiVJU3OE5eV05oI6ctBV8TOevCledaIWiGmXmKYXWndbM",
+	"STJuHdDR7Ys7YxwL3OVaPD3+WphcHB9/TfED4fquhewW2lyyUT4tqhQGZJ6ilwR6xNWmGBoid5HLy0Cg",
+	"c8ME3uYOFq9CGWGxWYv0Fis3uzbHQ7PDocO+n3yhXQLMHCE8oShBYIkPiYpiL+cyhfMHbd3r9ymeBnVw",
+	"eAWsFDJL36gBtOQGaMU//UfxqXPZshPSSZdtdh+V2ygdoixaJDs9x1+h8UwuYWXwHMLYPfcsN54sIA2o",
+	"7dDLyqaVmFseN8Rc3oFR/jVRZISzQ7ZW2VAA7Q+oj3jNyxen7IxdaLs3thegQ1CkxclCH9sLdy/CXGD8",
+	"suZkovATx+vbcaGuCmoHNNGoHixjncUx6fRqvcelY97VgfFtScvUjqPeRWMtGXldqSMjTpMO16SaNStc",
+	"6IPdUn2lsMdhKzQEtDpH7vao61QiUKlmOO1GuQgFokEo/ZCY00PI2Jjcyy7SYEVGEjEVe2j6piI90VqV",
+	"AlQPh0CQRCtyFanL7hLEKRhLVhI8OLiTEXIfNtdyBNlAxPLMXKiRtMvZvDAkvkL178vwkaNtsyhsmqgR",
+	"FTThPXIsfAS0MFUZME2VOxvNonDeXxcwgpT4TZqrLtjKZZGeZWrlPkRFEa9BsrbxFQXtmAmLsFD40QkF",
+	"q1pfJ6DcUPObygatD+x1aNiEx6xyUSUwjft4bgoxzxXFhuMnov1b44bqumXAxDA4xkkd0MjYaFtIXVAD",
+	"zuL5BKUcL9DjTEDQd2GewEbjx2CojEtG59tPrXAuhru9/V7fc/G7vX7vbqcnvgQbRmqFxIUc0L0JEQPo",
+	"XvP6QUy//v5VJIaYkjdsfQs3bfmqzxemEMeQNF0kxwgtUyjlgwD0VD8x+Vj1MmmLUehwjDEiJDZavZgM",
+	"xO+/h3Dwt5H4nsbg+n/7rV8DvD1O2dgKrIYKZUArGfJry9YF7VQlVKnxnqGzcbfXh5WdidhNaIBhFzGd",
+	"D6BqEWOhfnflw/doq+jCF6DmWzODyz+uJ5jHaOEVbNBfUOysyiaivfLqQPTBsy9tZUoH/YN+d/8ASJN4",
+	"e098aVi7cPc/yLp0g5DF1fsjAiOsT0IrTJUMjzziIXJtnDO4KaZ0ucTqCplSzJFoGFC6JO9nTYDCQICx",
+	"zDIXqOR8Z6Cv/PbxK2ja327fp8nbmN5YsYy6eKBACz7yvkvmns6+QoNH3fvIu1iv8TJTmpdowgHFAa12",
+	"Ltf5YKGZFY80N1KZFO1PLdpq73v6xwgWY8CCDTwQEp20OEAgtMuagBA4Wfe+L/94uxeEHOydyWI8jQfC",
+	"whrJzMtTJMmEYlRExiwXXQ5bUo1EwO5Jze2WMZi2NAAGYnsY7RmJOEmzBcnmeLDdmo/QYA0v4CG9kFn4",
+	"7xHtNjzia5DQ8R06DjTlEYkoew8RTmP6Cwv/rUr3LNQ76ZWlKNCJvJ964twu7S0kZI7vJMmWoq+Ly3Ss",
+	"OqRzO0kNLw8K6UPZsu0cY4d73IMLLLe1G2Kem1lqVRK5O44GOK+7ChMFt00CsyEOXHEW+k6OXFjBHVvz",
+	"A7jxpjnJiEjWXkzsiROfc0UjoCmTpTK1krKP9GpqMitiMwdppJ3NkvCE6FacGesK4pJs9XqlWAJLWiXa",
+	"8abdFQ9L8giQKkqVNw6AHEDEroE7U2EKHDp2fsciuqmNhANvjYRDgY2aIZdJ9IUmEjVGwCykqs6Ry+zG",
+	"Q+4yCOSEMFVlIdoVGXBV1OPAQ2xltZJAe0XypOvUi93rJ054nvEAajM4TN5IvInEa8bhhXYaoHiZdcAC",
+	"BbDHID5H3ldY7htzXcLYR6UjGC+yol4A5R6X1RuksATVifDt0AxCuLNe22Zw7P2Ou69xULR95E548sXT",
+	"E7rl6Yxz4YdybQDTmM1UqTUH+/0H/W6wXGU8yZpp0XWJB3Oeq4JhHeG9L57dFxcH1DlHw75uaAQzsYX4",
+	"8tVjYdU58nZPGUq8+PyvSGgFtikIaMsVoZCcrHw1p5JFqRaQkmajMmCULnHmoCyQLNEzqBIhOb0nhyZy",
+	"ZXGW7YTyqCEpwkahcwHDuFK8+mLgh/pOATcoXCBZJpw1GI/2sIVyE8QmtKVmnzrlySFq1Lm8cKMhqWcu",
+	"c4uVjHACQmaGAw3qXNQZNuA9YTQwWnLfK83xDijFYLCpLpxUhb4WFxhNAosPOJfacewgqIFTs7BROMoz",
+	"NBHMZtLFWoAYmS1JCUR7cLMFGMXv0sKnjTNJJ2quMIbVaA73WaqiM2iSFogvYcSpCGJsMTA+Jo/apY+j",
+	"RkHS6DJZCD5L8NrqiXocOPMPG8QeI7HdQkgr3kdIbKj4VQxIpIC59KWd86mcUcwpYxg9TIYonWpW8nym",
+	"ytmyXCPKcnGpQF5MrAU+bogTdAlP4Rd3KAcFXH9k/5C6tCB0gr5L8Yhlaov1hRO65FC8mhublkEjQZiz",
+	"SwcSbap/62RQpVFO87CNLpeIFwFSMntZOlaa7QQP5yDwdA96/cgFxoPoZFNOAXz29Pjxl6ePKeeTP4Sc",
+	"ThAUICXcf96KWos84/xPO9jbu7y87En8uWfy8z3+1u5xi/gNJBCnRaaqaaFUVctSuuh+j19kf2lr0EIl",
+	"lupjTTGD1gWSwb+5OlMtc53J+gBqpXogZvYlk+sL6pyLL9Hs6oLLIF/dU/nTpDVo/VYVX3BXNYimgz7i",
+	"7I7hVuLqeEFQ2V9zpjHxxOuym6kLyqGtzQOHCatxr99f14wf195TNlPiXVFJP24Nfv8twt/MJICpt56B",
+	"0KoQ6baQ54gB4WduW9/Cpy4sb+0iv8wx80strAAbIdwhTL2CMijr63tEryiRFhQhQyWTtCouTf6GzbFO",
+	"WS/yhWUc/pU9ec4ju3ZP0HY5z2Ra2416ivfKwnMPH2Lpg2Wb+Xms3YQwGHLtToCc4yw+XocIbAAgJJwt",
+	"UtCCEWFgC7Ln5nYjezfIHRY6HPrd3r4ffiT+9cPnzz7E+r8KNa1NS08RqlvyGKUr7NdfrL4EGll1UlSw",
+	"c5zgvf7doS5xueq7Qi7bmAPIJGWhxgE7832lmBePlxWmmrq678sBh4DLnEkhccgmlPjpBokjaVdCjDpl",
+	"9FPZskXF1KB7nYxwgRMey7enY2UZ6gYCCVAvB/KwcRC9DYPyYTyRSMFVtowYyoeU0Uyerzn7J7QrH5Ad",
+	"n6BjR1nbRK/YPUgauJ43pk/46u71X53S0r7W8kKmaKHcSNrlyDeQ9cX+Htqy1hL2r3+N0BKDX/96JSQF",
+	"zNAUDY8i70NoB8RqG4EmrmxBWXaRkAVp997lCh5C0Pso1yAWVO8ZgmAxksmhAiRpMsAGUeWk5FS8uuln",
+	"lKw4PZsImVKVdPCOudS2RyVt8mQEDCgui9zkCcStcu9sCYOnQ90myztOOPbHNk06IUgAyKc+xhWz3Q2Y",
+	"UrTKm6j1FNNfcJHC4uiwLd+34Epqoc2lFTnpimbQirYkVEZFeRs1txasQKXJGjDlCtzJxtbSZF1bB/3+",
+	"1o0hVdQbakSh2W9Aofn2Ax5+3K1nZu1dBdSHp/5wm1P/uUwcKg5+sn/9J6+15Mw8ldBHW/CJJyY/S5NE",
+	"IUbO4cGD6794ZcxzqZc8OvsL8THPueioUHxJYGg/W4YnH9wPSIUBe6NcLcDeWcl08XV9Hf9CRMdZqktG",
+	"SD9vxQmruDrXcUaK2qsxRZMnDg+iCpQLvXLqCJuHtDhbDjWARQQ/9sQTTmnminikKz/88tGRiEGyQ2Eh",
+	"1exeIq5XmHiovcspwoBztDlU9FEBCbuWK+OXuUtjD6cCUdEKEgMo67wlfGSXXzAy5QbCVWeASKSiIbF7",
+	"qKup1uDPdP9uzOI+cj4vn8s81NWEaSrhjXOuNA2eul6Zr4zIF9gFil5DzR2UScYrfBymTBu6HRsv/TJb",
+	"s/IQ8nkd02R79q22SaaOW23SV8rerslKvfN1bZZFt7dr1NcdhwarZ/qxzLMUDmXNX+WPDRYzaxgDHLDK",
+	"ALaBNF/t/5ksGnpXV9f0Xphb6Pulw2lY18vqvcyRm63BvX4AFXdw7R0dNW9QeXr2SoiA1ge90ZHA4Ag3",
+	"XekAj4N2VTPhvNSPl/utX+7HVEuHyqAFdzffvuvu7vDGdWVNrrvKMbzgA9znmG9D2WsTCMV4Sp4Xj89G",
+	"5bv9zaX0ecrASwkB7dKTEds5OV41tYznkCvX0hqtF5dw9fa55ohRxM2jn+F8rROXcVX/3I9U//D6L740",
+	"xROskPMv9Aw+pK0oXbWIcsjJFRimS9VDP/zpvLH1YSWHpnZGXeIoaAguUoXBTkuIDafYI8aCyRIvnnOG",
+	"TKh9gJ+gBIDbdDLX6Ph/DsfzOoUWl8l+PKJ/Bkc0IL0yYyQ4kXy4ttV1ayd0w4ksQWBgGnNj38sqSOW6",
+	"LKet4LuUOV14VPYgsMoVlvPo+CZPz7HKT5DPwDepwz+OICiA4CjAlwT6tGtmZCYANgDf+Ib8NeuKdWGo",
+	"YAEe/lQ7uaQnTrj12jBwcRKC6V/6v0CjxHAsByzKoVFtF1SJbQ011m3AkAejlTeHFxCezeAKWEAHtQF2",
+	"nqGZoMP8yC8PoxHEc7IFjHyIInXIkY9mEoR6scI41BRI5UMMfbRfGanjZnunWiDHRW9jWqldzFVuFU6e",
+	"qvjx0MCLa+vNVECaeI0H4KfgYp6V3ynhAHszmUPBceNgRYljYsD1T64JidYFyv5SbLqwPfGCIWeco4UZ",
+	"P52oqUw1Zgue8fghx+Ww/yCihFIm7VFqR/w1wz6cYLYp1BziuKczTjhmCa8EBPEXLLR35MF4h5qG//T4",
+	"C/F8vw91OA6gMnFRr2cOuLpc8g+uJY4IQUSHEVNVPKAxEMUhKqUto8M8iXFlJ1c6hD+2CMURMx3bkYfv",
+	"HGl1CfA4hciUtM44jt8w+iWfA5nB4yW1A+mC7hef8hUPvAPgAJDI6+X3y3L1omwWTkGWiXZtEm4ImDFu",
+	"BQOfu6Y6PIpUUykXOwK4h3AaFfTn4MWYlo/AeXmXINwkclvUcbmfPALqCcxnI0RWHymd2JFWKhlRYFM8",
+	"4MnAcCtsABYAPnThhQCry3EiVCD6fAp/035qmaOLo8AEL32OhbXwa+jwiDNhhcNxo7HwCCKMl8MS66qM",
+	"t4PuL6dLCqeieHiEl4z5qzKgBxe50yTpEFN/7C6KnWWdAJ/ldwoqYe4oHeEV/blJllsIRhz0RndZqgsa",
+	"IJdeaz27i3cjfaZagwPqgMDhWz7gVRzAsj27S+lvmNblsjkA3IXvJ+ApuRzDXWTVvFjMUJDaTjLzi+nl",
+	"qSrWfJEv1NsVyXD/51HcwnqvnD0F7T0z4zW1+V7KYuoOuvs4EnFN1MCK4NUpRpvCBf4Hk0r7W0ilx0ZP",
+	"spSKKxzubzGml3KZGZm8MuaZzM8VfXdvmwWwizlFzT9XSSpfLef08cHBNh9zNBUIso91Ad7of6Fy92O6",
+	"gcIyTJqrBUVCOjnW0XQgj383fj+/Ewnf88wUvbk+30ojvoHVCsG/M4OhsDF2Zi/OY57Zyy9/K9KZPFeb",
+	"tNuXmSlefvnbD6nf4hj2eBUazNxnqZZkO9wmoAhn+VGj/cVPFhBOoMpGgqjog1uYHJV/gCN1Wia5e8nV",
+	"l+WZyfwNgkpxGRFMO6WZc4bMJE0oXfIM85oolD1XNk0WEpLktcoEZtqSioXHwmcqSIqzxAjaoaacfte+",
+	"r38S4H9C6+w5u+54n379Mxxve3H+m6sbRQh+PNB/pgf69Ouf50CX2Y3bWag2GoqfrhTygTmFSBauNEBQ",
+	"QYgnjNopRSrKUqElvFE6zeUpFy6rEUsjl8/jUuFEhdCpp5CZXQdL7IkyU4oxmOo1gaReusI5nKNOpV6K",
+	"CFOEGJwWGgQnOywGM4UjZ2fB7R9qzlECXZNYk8vBpGwjzIWh5PAM2BEn/ldKMqpkqElpNTkxMiHJtdAT",
+	"oQuCgOGwHmNZaYn7QWDKoT7sP1iviAaL8p5864aKZbmbrUG/9+Be1GKiwRGkMNJvuv3+4UE1UvX3/V7/",
+	"4F4E/z28/y166DlNFguuld/dXf1u/+7db99+u7V6uZJht51+eXueh3AA1MU6DzwbJuce5D2iKGaufpIn",
+	"Ku+1PqqCH1XBDx6pEOYwY5SxK+4WhhwGvGfLq27D1VZB2b8N98sJKK42cHkyAonzCnAYgxdaCUbcxzZA",
+	"bF7pDyL03PVOGwYWYVmXqqGzWRMs6loTxMp5qjktGPYF62GTgZQQYr3ZCEhwADWyqJpFBnnQXOuFEseV",
+	"HiuX3so2UWi7LAzUfnr6Yu/p42Oxf79/cG+o3/2X+739/d4B+VNEkqeTgpOHKQPTusBC9lG4wnQBcj+C",
+	"kZIQnpSrWS6ZaJcAOjG/B7jhp/AGGlanBPW0cpmd+M1Xf8YRHicVEl0X6YEbm1owGX4U1H9pRhYQlhPW",
+	"iXJJECQOIC89F7jliGrP2kye9ObJ5ANEe7zyePfUTaCWsGnr0RMuHIJKi64VgRo4uZutfc5iXerPkc9G",
+	"jALbICY5I1Nw+n/EEJ7QTlkn2bPMsrb6HWHHhqATvltQjU0HaUocCb+xhSxSW6TjiBGhoV1rFlgXBp+Q",
+	"gRJyJtHFjPL2uqo4kVdmsHHvVMU5Y+lNJ/e71DBfHUa0tZypiPO0KTnbuawyeXbHij8arSJYRwl8nu0e",
+	"lTJK1kyKS0wR10mdV0cOB6FASLLTLx52oY4vq1FgS3ElA7kGi3ffe3CE0kmvi3xjhM4JEsnLR09+LhbL",
+	"VP/etkw+RB956i/OU19VihCFZYjfNytlF2kRP7kFMfG5uUCTYnA31GNLRGFEjIA3F4oZcK7IERoTC6SJ",
+	"W4dFxCyUnKmer2I5pFTXmUNPPMSmkYe5cVD5BLZPYOorhIvE7OyWpcsaQjG8JcFoReg/gRUEYRdEZvS5",
+	"yldnhskeD8qCTfBgkmINpLarWYTNU2nzshxsbsCeU/LIXBWLXJcLWRiK2VGXHYgooh+D8EOE9wI8COTQ",
+	"lq+y1HJxNgLl4/oNrjiqm6bUAvMWc6PTcTkGCHmBFeTrjED7/a9gvlGYfAR3ILF496bLWvYZvFijiRro",
+	"OsLtUiZm100eciUqGLH4fljHl0TnTIlhy2Vx8rfD1kDYxXjqakDhzcAEBiN05DXUuAlYOZoSwO7Y8GLy",
+	"eGjh2Sin3GmWtWE1byZm/0LRC+5ItQYtXqVWJVSB3AZ0m1eKzarEweaiYFEtIA4hRjuEKdC6/UI2pLUx",
+	"CjQqlXy0C320C/0Mobl0+koW9f7RuRsu+ZKRfbAo+YCXultOUzWewphOGcQ4kzqdKFtwlVAUfxjtNhpq",
+	"TIcH7aCqFuAj1A0EqwZHpLFMFRb6c2UT6XIYaor+nHKqP+sBdItjAXJ8rSc+B36nbKUyIt/eKIys3s4M",
+	"qxjUDSx/Ma5aIJu6OK4O00PL+7pdxRGI/euMx8etsCrFoZZDzTuAn+MvcWdjYulpueN/lhYgP751eXSv",
+	"Kov7UVv5M8ioD0i9KZngdlSU6L31kIfNQu0ghP0AiFUL5eRS0irm0lrE/0OpRpSVYQKZOHb9OR2lrM0a",
+	"ypJHTsORUGtSZtY4gdSW3D6U4KEuFomfXsx3xK9y4cPXvVUEmBRiJrveodnvJIvTKmeUSyfrr/yiS8ZG",
+	"LGe2sIXgoobBGpHmRGj7sCcq8SZsznonwbxkeBTNTjgmXW7Fz+kh1zV0Sw2RxZlBUdLkQ52keKsnQo4x",
+	"ZpiLfB6VBUhBb0Pqg69c1Rl4FXf9G1JSFmewvBW+ymomcU2aMC2kr06SnqVZWgDsf4WlU7h7A1MXdZ7u",
+	"EH5tMdTwueX8jAZWXmonnqXLcI9cA0dCqxQvN4f+GN5S5HmHRQ1a5yM51KW6WvjuUF+bItY4f8M40zAI",
+	"Loje6B6HY/8vX8fBow5Peu7UtKIW04F/UWY4R6LP1qDF5WC6U5Nb1T2TRaHyZfd+qDLhiB0fSI7CQkjj",
+	"PEWMR1COd9COPJv9hYK4ff/X3sofNaWPmtLPI3a8v7SxQTmqYLV+gABP0o/CXsqU4oZ4MMTyKeImVgyy",
+	"8teV0f5ZyvbhEDeJ95WF/yjh//JH7etGh1+ztL8hVWHLqMxtJP2gAubGcyaelmUsUFgd6mbvpYP/w4oW",
+	"VGIaBNewo86R+OohfDGZgPa+9O5gjaX57IIRt6YgSrZrg+LkTgTJrGQogjW1DPVguREr/UE9vLKcVyS0",
+	"GWoXw9ephrikXAorrlZtH3h8zqHe7/ff/TgBKtzTZoauTGjiV48E/tLGn8RPf/f3gn/uuPcQgwSkH0U4",
+	"5UP9w68e/SB++vf/Wy3lsZRxeuEijwqTqRweY53HiBSIoXaRqe/+4aAvfuXSasXrU/H45UNx+k3308NP",
+	"xHNsXXza7/cfhZ6w6j4erWa30rCwCGeOxhyXhIxmEzke5ypJydqEj102rMNoeFgWVcSl1Ubkxrv3nQMI",
+	"dA9yrTxsTDeuJhp7Kb1SPMbnHQ+1LIB4yeuMSN/1/ONK4ybnjKHAs4Yox5egjB3V0pZZIbBcnWsl2Znu",
+	"HKguGIRlNaVeV9izi6iiIaQFfaDsUBMkO+lsoF9SZjDNGEx/pM2GjUVDDS9Jh/WJ++LSW0mb4apEMlc4",
+	"pyKX2lImsItIC6HhH7CjSHg/EbToy/qTU47zLVlF4nM70qYYud+wZhLPsExNR5+RFqtLVTYSJneXTdSi",
+	"kvldQJibpJAFDh4urJRV2ewgWMyRUZDKD31Wzhzu6ig4MMAn92QRb8i5Ddn8vxSlLgA3aw1aB/2DT7r9",
+	"u93+wav9/qAP/+/fwE0TckUMf36TalLkdJHqBeh6kU/bPT7+ujtD9NFaWPRh/8H2QdHhYv5CGls4BNrh",
+	"ZBuRyyPXmEUBHPGjOvdRnftZ4gjRztocXSbaT4+/3js+/rqzpajpxbbr03/WVjqj7/aYhX+grNkgkARP",
+	"OmHNYI2gan6dr3RbcBEQlp+GWpvLzkDImeGbzoU8+Bu+oBwZvEDwW1/Un+c21FjtaovLjQRPeNndjhRc",
+	"R/izpYmxYl7EhyhBEmMJwMDkpUwL713DOBEU0Fh8sypEoqGJjVI9wlIkMUhpGi3dZahHOQnrbPUmS1Qu",
+	"jFY98Y0LRKm0D9AidAtDUfCpWeRUDi6U9FLL7XAZH1m4nQDJXOMLvpadOOwfusI+GOGTKwztphoyrnjS",
+	"pihCrl65+zXsiaZ1PbrreniEXaBZV2+TmaGo1pMnx+Lu3bsPjjAOCTdXnlmli3WooLLYHXv0gyMOuq3Y",
+	"BDxYbv1Hc8WfRfhkdVfgqEomy1u1VVx3hdxuOulDGxToXJO1GkekyIXGw3IdJuBSa7hcYlfBceV6gaOL",
+	"payH2tf02vLGBKXHGuaV4tnT56egnCq6PgoAs3HDS2xjQuqXxr3gxo/uqMOh9jHv5HBZr9OU/PB9EjlD",
+	"rvpe2gqz3kFLp0UukQmvKC77peLSnOl5ryFj89NdEjabFuVj6uZHTeWjprLN9fLVQoL8s9zAZ281h3P7",
+	"Ssy3cMXsVgCa6sXXqz8jDnVQ+5lBBDFzBq3a7kWMjv+OljNt8noNdXhzNWlFlKPUrBnB1dWJKGSvmLoi",
+	"VBw5A+MrZ4JsBQfYwFXc1TTUwd1EGTP0Wmq5bZVwppjJKciiAKTBgSgrPQ91af5rvNucyRImhgMC054r",
+	"sGz3hot+/+5Y4/+ooLgzq2W8yJVl7YmHDJG4H/WhXKbL0yIcxN3uzs+Rzn7h+5P6bLpMd70w662kK62s",
+	"QU1oaLJ/eABtfrvpSn+vKxrX/he/p3kUmy/r2slyJ3TdCft4b3+8t3++e3vlvgrunTR35rMPcpdzwd/t",
+	"bIkVH/fulsWM6r+EsNdhUhZGlGg5U+siSp7zWD8gV6EuNsWC8IJ9rJVy+5kmWVbWn67RSpilz+9sZ2q/",
+	"xRCP0O6BXm6gVTFmyHdP1fs98dLYgiqaEUQ1/Btf5tr0y6EuMT1KcIL6+XBNkzn7KvilfdDfB/xnhRWd",
+	"cv8Dxtsuo8BPPeawzzJZtQZgMtSMYAJjK4fuqpAXq+f2jnWZ68SnhtoNlOE+sHuXHQoe5QMsgPlqmitL",
+	"sm6mJoXA9NXJUAdhGrEo5BsV1JG5Yz2MeFh31UdC2Km5xClkGYKQQLQA3eyMTZ8rsdDpdwtaexAwnaUd",
+	"YsA3+J6fu/Jg7+d1vjXhkg3SpWS50GnRGrRm53vPsJsq4X5J7wFLff21mE9NYWYKZZ1JeqFcimSqRbKg",
+	"MWBhLERzwGJYQFqtqNZrd3HRiloe6AFKlu9dbS9C0pL+QvIi72cDV3/qIHecn6tG70eerrHuEfmtkf/f",
+	"pm98/fiI2TDVmvz98KndVRsHl//e97DN/6MBVH+UeP8MQcbw8HgeHJURY6FQaLTa4bpvFmiZpn8JuZY9",
+	"zBQQRlUywjIt8frK/o0XDrolIUIsYMdy9qG8pQ+FnasxxDsE/C9gilv4TAO48IYixwf7h/cPP737yeH9",
+	"X7DU8XpmW4r4Hx2nvzy/eKHdbnxg+b+ReewVZt5NzKX+QJE2PlDZ9SNylckC5LOFHqu8kKkuKgbqOChS",
+	"BHB/Yn//7r2DI/GlyZMCw11enYh7d+93ygDuanAsRC2heH58/HVURuPmGCsMQFarGR8Y/VIpKGSjUnWv",
+	"1bDyjN3Hn6da/J4qNEdYkbnDaLgU5eNDWVwOoQ9/TV1GptAm3yYQSLQ5/xwDzFNlxaXKqYiOq10ySYsA",
+	"GSfVYmEBPaesnof/qMakU/GdoXbmflIjupk8E7ma5yZZjDkrUyzaJ5edo4ZVR4czKoBS5Ir1vqGOZxLz",
+	"7rIY9RT47iyVViSykJGraASbTcGPl5p+rjglVF5QR4rwiYe6PTbaqvwCCWmAn9oxZgTCOuN03O7iXqyE",
+	"h4eR5fA1Oz58SiYvE1fxdA2mWsQLDas9wkexwMqBuOdehxOFAR9I5Gp2F2ao735yTyQQmeTiwQpDRwRw",
+	"dYx2r3rEnrnKU5Ow02SiLl0E1IEIth7dHeVad91KO3wCgv4sb1oq+aWyrAshPi6GzOFiTmSWWdA186Jz",
+	"BKWycVzuTHIOQiX1oK7K+zJDWFs8LaL6zNIifEfxYgw1roaItUHv1KXM9VATuPRBvzbhuw3zLbnF2Mxm",
+	"Ros51qkaK9ADzzFJGQYB4W0zky+RIDxEkrEK9tRzol5h5iPgUyPC5ENvWcyLFMNhYtQJZYsURhAFcRGl",
+	"Gg8nyTEP3ItrCsDSZf3KzB8BK/7Z5aOfP2LN1+muHM11RbuPRNMJ2kZQu92y3psG62t8bx14d5Oi3x9S",
+	"YmTyO1Fzk6+1DTu696AwwMnhaC/s/4BwTf+T6a6vnJAWymZezPrquKHK97WS6k7CKScSbyOLriT1MgBF",
+	"JDx6hUM8Em1qF29AqhWaqEwVKlmL2/OSBvIhnbsqt5tTcmnQH70wt07msOi8utsnsd/YjeIQXKieIFvq",
+	"EQIjAnl9kWUV4C3RRgCtAMsKHAAdKGFqMsUB/CVGTpvhnkFo1uJhfm70QZqIqbRTlE43mP+JAn9R8z/M",
+	"fsTX4cNMXYmTEhCkESVkO0AQk6kAtE3lrR3qauCi/ELJY7wja/iBQ9hpfbRKf7RK72plmiuNEXFEQ7uz",
+	"vcoFvfc9Hs63e3zVbhcDWTMNMV8cSx0YLIDtiRTTrOGfvoR1mhP4FWmxjE3bo4Z4TqVHmGPaHQQhOoyb",
+	"2OAjGv06PtigdRFPuqlK9Ay//rBC/P8YLOR/ArsvE5+HQL6tI7nQAMm284k8zpTMLcPAYagsQhRUAN9U",
+	"ic3XmEf3Grv+eJw+Hqef/zgR7b3/aWJ99YNBT2FsBTsTpLMOBrFMhLXhi/oTAoctZKEiISm7VhcY1WK0",
+	"EoUpZEbxvKIdW/UdRKWbLFG2cJgqL+W5sgz0Qrm1aJ8dGw0toVPBKiWGqBXZYcth+QfTJsdHakVixhge",
+	"DXFZLqQeZm1NHuNHE0XXbV7Y0m5wps5TLBUFIL8YO4XvRUMdQ8jXyDWQWiGzSzDyWVWINoIiCDWbF0ss",
+	"6cK49JynYE0uLAwlGmpMpgMsj5nJVexygAmNGB4JXjR0lsgMtgtAUmYzjArrDfUTXB0YWnVEVvlSVtiE",
+	"DxkzeqwGrlmZq6HWi9mZYmcQ1S6hvGWUXErEFMv9YpKepHnBnuZDzWg/UnNfLqvbDxQt7jnREuZ24Gup",
+	"FeAILJR2XQfdUSNjuaAs8AHCMeEWYDUAFLM4MQFhl3pInhgjwM97MgHQlph+YFgWonCPudJzeEvReigB",
+	"fjP8Ne4g2OgaTxd/4H8KB+ESU6gYAwfs8WmEocNxGdFRKl8OHWxGKwsnhRMztykF0S6LLvTc+/Gglq2O",
+	"wFLerRdV8HegRRwrnljsc6qy9SaoE/zuMdLYzko6nPpjpOLWqjUbfhQ2/aNaZ5nGOkQV4zS7NlqD/X4/",
+	"KiMdoJ7qLxjjQEv0RDVjrGBOhCRuSkf1oy3t9sOd6MJCxm8mNZStCn4+PbkdOzG/vfc9/WOUJm8/UACD",
+	"u6H5Zu7iRInzUvgtxT3xKOKoBNf3AQCVW5wDhzGBWjzUIk1KhzR1VUlJG2pCzip7WONBpKOwyieaSk7B",
+	"m3csdN0Ohu7CG3CGeKXyQyemdDy7qErxvomNkrx3b6W6+OSwFTCRB/3+/f0HDw7uHd4/7D94sP+LMxSC",
+	"xVlfsgve+Sjz/3mETjnMbCq9RGWXwAH74VjPYmtYiTLmss5ZuHaog3BvBwX9XM1GX9qP0H+w6qvRLul5",
+	"rlByojyAWv3WO573VAof1sH7BkKKg/4+QdnbiuUsEDoRlHHhAOhJyiUj3IXM0kScLQqHLUkjG0vN8PWc",
+	"dMGRVxYkeo7KjyAH1mc4WCyYmEXoqpuAXIkv2Q7BUkD1EHJyRM6JwsaIsKhYtcb4QOTycqjJN23Z51dM",
+	"c/Btyku5BIxSGn+q54tCtA+vrjrUS1jRdahPFhnweLU07O4mTkGZFYNg0Qm4H1NhcL9QyVIEA+r2iRks",
+	"4kRyqgYsCf+MGPwwccDUVBnIoGiSMRhI1c4VMTXlKUScG5HqwoSIpUQsxaVx6Q+JgfkIO4Utk0NdgeU7",
+	"cvd1mlTySIL0UVyFv/iLvxCB22eoTxXcD8Gj7u/UEivKzSC5JVcFRuxYOVE98Tu1pNbxyDmoraGmagao",
+	"oVhSeNQMhw9Viak8QiHg6izEwaFAhKhKCvgdzIoBszH6z6i6GteXGdD34i9PX3wJCx4Fiw+8Yi7zstKn",
+	"HhsfDSja1kAWTqGEncux4hoFQPas0/GKztDh1Dmijob6+PTrSkcoUlfCr5iCcnkpzkwC9c8KBXa0rjiV",
+	"MyXeqCWeeSWCSUVc05SnjHFE6Lkm2vv1r12NzKEW/kD9+tdUwK1Y5Lqc10F/v+QU2A+OAm96l1gRgzot",
+	"6LXK9p6oeSaX2G2+UDHEuHBtCVzRMke/Oh2XAlaEcxoA2GblRVjwTAUlXIMkf2IAqRaTDHJyaN7cNeKY",
+	"wYAJ69QdqqKkEaxWRNX1cPW1yHEmBE1rcnGuCqy2AK20ad4nqsiX3YeTQuVxR6STSuDaJNWpncJ4oGWc",
+	"xcOyM6BlZk7AUqCDe8BZ/OcQ0ofS4Ru19EcLSKcdF+qq2Bvbi7gz1L9VWuVodx1nqdKFJc0d34QD7wEj",
+	"4I7Bj0Tbi4RDzYryyUIfQ3s+rUy+URa9wqLsDVcmUeOMQY0tUe5Qh6Rrhbs3j8gS5DtjjFrKb0MLStCy",
+	"HWq6Hs9UIqYqV1GNAtVkosYFxcvxTL01g1GdqZyl1MsAhcIKdTU3Oa5HT1C1kWOS/7rg4RuIchC+NPpQ",
+	"UyYRVSW3DDzsjFQrxzUmvg5aQtkxVCyvxH2JtlsY4ryxKyqMG1Kgtt8hbg9f1gTTmHGBg27xGjlTHDom",
+	"2oeQV+iUETywqRWvXz3pfgq1SjK6CpCVdIk9YWXd1Ir0XMOB7BAi3OH+p/2hbvPUAUj7DOZsXFakiIet",
+	"+Eg8ewIke3zy7InIUq2E0ont9MSzVCMOtbF8QId6PJW5HHPEbfwXFN4LUgOZxHSCD+ybdD4HojnLpH6D",
+	"bdrwB/bg0aE3aLDDftnORxvWE8cmW8y09dnTKM4ASeCUB7A8P4gxviR+8KQqfijtT7m5FD+42w7/GOof",
+	"ut1u5f9DKzGg1MbiB7FUVvwgYtdCjH/g97GgN31wrHuZH4jUhz6ueYif4wVdfox/Vj8l2ye9XQUZ91+V",
+	"IdzBz5H46d//30W/1oK7HcqPja5Au7BcseGHofaLgBoj9F/2UgoTtZk6OI+VD9wPYiLHWIibIFZEX7Tp",
+	"FRJN9zvcUGpH4SywLcKnIf3C7/cd6wdtJiW7STVE3kOHN/4OaK0rSPOgF+cqB4qCerAsoTknNbvOcnNp",
+	"q3wPLpuSfJBvMDWEmgAxbWQI7uZSsqg2UiWLjkvLwlHXegj2rU3/tnTZl93Uegh2DsrdmkuWgFJLIhpe",
+	"CzxnaAl/xSsR0QDpPIb9puU94ot/42lE0Y1exO+rO83cAGW58BfA3TNauR0YYCUxuK3hDhQ+ANvvp5Ov",
+	"TYlmRpWhNLTSXvkZGqESU+kVaAGmmNIUCPCcVypHv4osWNgBfvm0CKeKS6MbhuMBikI9wmMIlVkQEqez",
+	"QqxsSqLBUDWxJTPRdlmw143xDgpK8R7y4BqkUbjaGB/vxGYP9wSCB65uSH0O81b7+lm4eV+ykriwSsQ9",
+	"EAOwevRMZmJuUKaVWrjLEW9yjVddvN+7p7p34w6VXYC1NwuLCr1VcEUWJrdHIv5Sfgm38lM9icvSlOkb",
+	"FYaGoEEAHTOiJOecandJdJ/BFFl8G6ss4y10chrc1EtRGJw8rp6Ai8Ffz8ie6HMtFvqNBs3S5GWqeeLo",
+	"n+4rKWYpJSL5A0C/R6A7CCQiVm5LmZm0bSAVvrcZBtddjJxbCjsKbXAIDb502H/wCSkYIcVSTTjcBJWv",
+	"oQX6iwZHj2I6283vxx1/4HGN0XWAa4w0ROvYhroV4CsodVc4s56Q3bmDjtzJ9J/gjzZ44OwiEcdCAm2i",
+	"ZET5MpKAt6Ctg34f0LcoRh3ZsIff6opT0uTRDMDeKsU2Gd8iyspASUIb3aU7iWLxj0iHFSKTS9Qvzgy5",
+	"gFxJ5rNlWHz7Dh2hRIGqmQfoFdDEWY6JUOj0RfMvFz8X0q95r9eL3caRB5CCKAdDHcfxUP8FS8TUcXB3",
+	"O1gElXf3KUMGnq4IYp2hBvqOnC2CzDRVqcKxiMhz9MjdD0Pt9jJiHIXo2X7U792LAParfxBFG9/oP/i0",
+	"+Y2DaL/XhzcO+vea37gbHdAbh/v7+AaRj/s9wo/v9SMEEDtY88L+3bv0wt3ogBd0TczsyeJWqjRUjYZA",
+	"GUhpXpnAC5+rdfC9gKhBa/x1Pn/0NlJzNo8mIK1Szls3rvLlDz42DzKOxkpZIrGXiNjrRhmWs3j/VKFy",
+	"iF7/g9EZuH1qYIrrBuR0yK0X7YX74O2HqevR/7SExw32dNAKuUsrcnRYA1Px0+GkMltglHYI+NcEK1ji",
+	"/h2s4v4dIN84OLzfgCdIn6/BELy72tb+3buIIOhF77VDqtU0Ae7lK5g8229ouX/A7G3tMGtN7gcNNk27",
+	"T/Pu72/b4EHQYMPcgWvC//Tvb9vgYdDg4WqDn+4/gAY/PTjYtsFPgwZXER73PzmENdz/5O79XdCWTxZB",
+	"DH/UcuagCsG3Pl6at3dp1qJF6hwRdQBnCURZCbGYUv1M6fNiGnp6S/SdnzP1Amylm8v1hOqQ03xyxXZv",
+	"0Ta5d0/lbCwf6hUXSURBaPwRy4jOhu/syBwSFAAfNZniVxc6Rtu8SyNPrVOcuTe3dqx7lsBq2GnNMgv2",
+	"6W2wks6MyZTUeMq2g2fiUmmMz4QGbMDT/wjN9DEJ5gPHCwDwn5D+IE/SIjjMYcDAQm8JvdIQG+CumfeK",
+	"D3jFSiiIoAiOUnH4xJztVzphOF7YXOqg+sNQk0tFnHtvErs7glBeYZVm1ERyB1pWQsFbD7EBSSoFHL4o",
+	"8Ox0SmcmeFZE1bESeItWfUk94eZGinPk6wRa+mdasjrfCwF9DzVBiBirmtbkcpMbCAozgqNxYYEtG3K8",
+	"52ZRKO8Q5ArxZEDzUByBJ9Lxxt4m7fDYXty+grirGvihagzdXPn7ECO6NZVvi6C1nVTAPxNt76PQ+wsL",
+	"vRyKwBbCVZb1UQT+KAJ/FIE/isC/kAhMLokPKAl/v3VY/nuik8J0XGqWdKFohAvnPGXkfS3jQdgNiwGA",
+	"PmmBnlUyuHI1VinW1KwyvnVh+DfwD5wstK/I/KHi2hd6A0//GMv+Z1AZwJ1JIt4bncHdA9mpkuGHznml",
+	"b4IIXF+O30bV08axfxBLw2X6cwgsZ/A8DIWOSt3MxRtZHx++Wh2MwIlTDIqk+vBJfMR5mS6ancLDKcEH",
+	"k3Ia8hFp8C7IHUIhLMFX8iAcxDPONBxGGYLvi9uaLBFcvdZlAeLO+/xEHxl6EqYODfUjlacXpRrv5ug4",
+	"01fHURhDu8gqNY4xGHOcAosLwjApFQmhLTlPaUSP4sFQ7/eCXi4rQ1yLUToQsZtUfDTUB2ETY7PIElFJ",
+	"D6i9frfe4ypYau2Lw/ALjr2FxZgBp0doy6Dy8aX04R1YKbnW1r1eiAPdnMnqUV8rFZ45GICp4Y6togPy",
+	"uMLeIrHQRZoxlBNmeglR7dJFaQVFpRGTIaUy0jAPJB1IOsXIL4wkQTrk1SBIWJY211F2yksC72ED9PFU",
+	"5QitygG+dcRXDxzKp5o+SjHsgtqGnOIKhTBgE4Z6Oe0Mu67qyRSoJJI8nRQdzpN2CR+wk27J04Jjw3FN",
+	"TZbYgClQG7RelAMNnx4N9SchuVQKYQ9EHKToAjncD98N6muLttdy4KREFCPuS2zTYDsDHAKfKuD4FRgA",
+	"n+ePRxtbd4nfoCi6qq/MbmPPEV6geYrsEnaoKfb5IUZfD0QoIEymaf4bF2TsMzIp6hkjWp588fREnBwC",
+	"e80yDm+MP1/oBCJcYQwvzhhj1+jYijZi75bpja+PXz8XY5MoUraLRZDxX8l4HIhyCcRP/+7vxQQUvaiS",
+	"D/3Tv/v7oZ7nCqKHtIQSHp4xwhdjqSFGi2OVqZAfDudIxImCizWmE1hSEf6C3PIJwfC6jez0RHXRKqHi",
+	"y6F2K+TCplFK5g1nQ2cO+L4M2OBjx+RQ2zlci3aqVCEukdfB37TcsGWLTGKEZ46R8tjmZ5H4TSS6kfhX",
+	"kSjk2VBj/LUv+C75kuqIea4m6RUvAeWoG1vkZj5VmKNFN094R0m4/gwtFGVIVKrS4JLQfhNUMAVsuUsK",
+	"Zg3IcyItVpbsqhtS2jS73704+I3K79MSOhob6i+e3RcXB717vX0Rvzh5/YeT/n4sZspaxKRItXh8cl9g",
+	"+g1eSi6Wk6/U9vPTL6KhfvH5Cf304vO/wp9pqgOaWESEuNBpEfEvgsgxEqYk4KEu0pmKPHY3SFJzhLKg",
+	"th2nYPsvQ1NbdQ7vCKXpxhtqKcYyz1PIKqf8GsyEef7s2UsxySne0oAw8cWrVy+hhqX2WV/FNFeKjgqh",
+	"PIQYm2eL5FwVYqk4v2Uss/SMbfsY8wVYBFTsHjeHgxfXaCAnPvv6Z1BEPJ+paiP1kgvMbRzBwaIs50qU",
+	"vKdXWlbNGdz5KCC/l8rj1qEeAbDepAJSdjNpb/5uQ6Kw/ahd/fLa1WkFloCT2hf6gyYJk27lo5zeN2OY",
+	"2gnET8+xnPsD2gfhRAosTCzOjUKvlpMabWkVhyB1xJCp1QIuUMWqq1FlWQQsZhaW/01LD0y7VO7MpQbx",
+	"HuOTg6pvXhQscVs4iJfNs164CHCRihCyoAqIBPf9mqxmsTmpGasuVyT01K7olZeyXO4jTsgiBQvuEoc/",
+	"492DzlKE4f+oaSnLyRWNmoT1QeZDHfSKaEyl/FdX0iE+39ECb7jT5QjSJy2syiZUbUFCgm3gGAvUvoW+",
+	"Nr+ZL8GgNjI6eDntGfqaQttO3nAwO0waRz6jQ6RJJZm5Up0Wy9WBLRwEL1CJOGPB10suPGLTVNqwUVZb",
+	"3NRcNYFyduudtLyAt+Go3eFKvWFUZiVOcm2E5oPBXRehuTmYsiFm7y6FKR48eLBLiB0v4i8ElVu53huv",
+	"X689ewTRvDQquXTlj0WQPzpdPrxtN0k8NRYmiED6zlVHLqZqtoswssHzwh3tfe99728/tGF3UmYdEruP",
+	"hBznxlqYKB1AV6OVbn00+w71it33SFxz+fmuWBBgfWobJCVBQEplNuIa/YnY2loVapXPPHv6/LQy9ZWL",
+	"mX9dA5/kR3Q7YTIf0o1UXZuPas+fO+NZOaWyRq0fTAEqyxfQAS4RFrfThDZzn8+XVPMrPdcqFziv72SX",
+	"zbNhEAr6NpwW4WsmoHqDgYhD7QeKKOE2QvwEPrswYC4NWY6/NMMIuUjSQhS5TDMc1jf8EtfFbgCRLCtG",
+	"sx9ZFMabnz2gpQKjm5jJxLuIcCSiDVnXboSdqGKcBqA4pcGONnKLhtOMAiBZtMA6IehMoZkusMIOddtb",
+	"Xb0utOJXISN3h5UDv9LQKKPTgnqNkKOiCTIzCrQ6WAyYIi6kSkJAUfhpVBg3mQ7ZOOHfwXJy71l6ofxq",
+	"DzUunHeV4CXwYOCXkXbObQ2B5DbcBG4vT11nt6EsNHD/92D7r18/feQY/g11i/eosYFnC0wrhLEfmgwu",
+	"c6PPa1d+b/sa2t/4s/YL1dEu93zNFVceyZLAP2oSHzWJD36hu6MhZEl520OdX3dns2HKV1b8kBEhXIG1",
+	"dKtzn4jxMzaJWgeLfMpfPPeD/JCcoNbZpnJdftU+ogzfvgadZaukYm+/DN3Oxb24OK1KysKkfnxA+raA",
+	"qgTWMM4Re/+o3nBZ13YgYnRmuiQWdTWXOlHJKPARxhSrGGM5VHmuRoSZFDMISFyYTOVSgyu8/e4fhIxK",
+	"8y9c4VKfLzKZR0O9EJ8JuffT3/2nuyhU1UZo8orzkZA55rmay5wDj4ZaakqS8RMlJGQQtrSI3csjKv3q",
+	"wDB51vwzw1jZQs0hTCRLAYuMY1G1zMQF4I+Qj3j2zCvSaT7Ufp62cyQCV0SEPmBswnm8seSBD0qYS4Jj",
+	"5kCGz/iBePej+NP/TfAQ9rD7jg+p8tWqHfUNdbAn4FE4wwSJsoM7jPWE4jFN444Vcq8NK/7ux687Q93+",
+	"y+PfPgcsE/Huv9zr7fc+ORKPF7kEnrN3/PTVw2Px1euHz8XD+bwnHvf2AXsJ+aUtCxgONcPbD4REdilS",
+	"BNyhGDmAjXuwofJbna39ojXgmlPEE3jw5Yu73dNXL45/1wXgF3xeIX5Mb286LK3BPfwhzZX1tvL73f4n",
+	"3bv9VwhlwLZySGVpDVr+8I5m5ZJkBj589uJVlwzt+4hasIDZqBy0a5qDOHEfi1P6ERgTEGNr0Jqd7z1r",
+	"RS0kOYLL396+XtukX8jQvkIra80+fKW7FexV8ze2y4woxYC4WSTZ+x5o42OqxEdZ+0PLHMRzg2BFEfCG",
+	"beWOa0Vspudbl7QbTdvXsv0GAwUM71+AZXpLLlUyp4/W6T8H+P73OVu7WaSpfOTOdfGeWrtQFkycUicg",
+	"SUIzou2RyfcPPhVnaWE7pbcHkgM0gZ1bZ2VW41wV3nSM0SIuE1FnyyMPFadyh0IPz1EEZUTzocaavhgY",
+	"ivkKmTkHmXq9lPcKhvqLinYBYjOaJ0K0qG89h6k8jlq0cDU35/ZhCTjrX0hWwr6vyaFFAgrKxDBpQKit",
+	"RuH9Y33fj8LKzrwU2ZSQRF0BD2Wut6V4Qm/7vE0qkr81qzxRF+YN68LY0hH7X0r40f5+p1TItboqkf6p",
+	"HNJQB1iqLu4rx3YTZr3k1G8s54vDXcP1PpzrpcJLDldXi5Yl+Shx/DmI9LAV739McqUT+4EKjtEboA/X",
+	"UNgR7NbZusIan0E2H9oZhhqydzz9x6LN1ftEbDMzR4hn6OlMWhWi7c+UJGc5hwecPsKWyozC2H0Rl6lQ",
+	"5XDJTa4Tc1l2eNCHUqFwt+Ymc9jAFsx0hXj3Dwfi9JFoX8ocioOSze3dP9zFhxTM28FoGnDhD/XpVF1O",
+	"ZQ6ZXPDf9tPTF+L+p/f73QOezjfKFueY240xrfvdA1s2Hon97l3AOz/oHthInHQPbSQOu/sUnbTfvwJE",
+	"Ucg66KCNTcFCSko5LRfWVrNALeX9IJqFNoVPVTzy/wpBMsAGynEFQx37DgZiIjOrYjDFXqQmI7OrM6ha",
+	"nExYHxYahLjnC5NhrDEm5kzUpQN+htI/9c0ppirngFm/6QAcTPuBsc96kWWcdERdprZchJ54SJjKYh/h",
+	"lMtZDTUQ9pEA2A09ptqcrvyqDikCgwqwFmtbyxwh3wu3Fmgnhk3EYyX4Qo8CURfRRMYq4uzMM4P4N0uK",
+	"NB/qr44FXuTJIleW0v7leJyrJC24HkKuwPpdwKWiE3H64iVX/1jn/f+tKnA0a+6RD4901NQNH/4P2oef",
+	"7dZoRLhOL/1nDXBIjxFlBfhHGHEPIYCYDnCxFs8KCOMWEHmfyaKhd3V1Te+FuYW+vzCXYga4/LUzGZVi",
+	"EOYDVhloRGW0ioBJrxul+725WutBWKz1oFKr9eBnLq1I52ldrLbKU1gUOLpuRpHHktdJyRo/eldvXyx6",
+	"BKnWTuLg+oLuQFM6IyVPophRu8xhc6o3byBWEa3flgEHr4e9eWaKnr04/0DiF/ZSScGmfuMaOFR5LUSC",
+	"QoE4F4aXB6WUQSg7cMkwinjm4D2lCxQNNN9tJBMNdSAK0TqXUXPcGooedCoURpRnyoUuop8YawhmcHef",
+	"NAgjIK7gqDddfi8zU5x+/duPd+DHO/DjHRjcgelMnqs9e3H+m6tZdoO8YGQNH6+x2y9FHrJeyvFF3h0J",
+	"4mK3fCtB32q8yMFqCFzxTMlc5Q8XxbQ1+D0VFECD/rq8EfrV1T9lRS1A5h2wygdGK7KicSiKq58qkyRX",
+	"1oo9M1daztPeUs4yzFqdqGI8dThBbdU774l4WhRzO9jbY/iyTJ712FIfc6TIIs9ag9Yemvx5rerjfhoU",
+	"hVtoS5HeZbRQmdraLu0IttMrjyp81QBw+4RKBYdtOR5BqXsBhg8IADZokl5saPSphtVXYg6a4NjhJDsD",
+	"YwWxNGyvfL2p0a98GDqMJcwACCaJLzR9XKZaVwvlRz5DsV4qvpgqBxYzUSqp9MJpOCvdfN2YbhyV+ddl",
+	"MVpOH9CQHTJWQevfjRsafoi3bzqWGQNp2CA0i2uASszwNVk6TlW4rPxBU6svn5JBLnydHjS8/RJjXP2C",
+	"mWqKp8rUuMiNTsdlgGxlc/HrhmafgdNOWV+AG/85U0Wejl37wdns1eF7iVq+fft/DAA=",
 }
 
 // decodeSpec returns the embedded OpenAPI spec as raw JSON bytes,

@@ -35,6 +35,15 @@ type curveContext struct {
 	Excludable   []excludableRow   // readings a reviewer may exclude from the page
 	Previous     *comparison       // the previous curve of the instrument and analyte; nil when none
 	Sequence     *sequenceView     // the run's sequence for this analyte; nil without one
+	TopDown      *topDownView      // the method's top-down estimate from the QC history; nil unless its spec takes it from there
+}
+
+// topDownView is the top-down estimate of the curve's method and analyte
+// from the QC history as a result computed now takes it, or why there is
+// none yet.
+type topDownView struct {
+	Estimate *lab.TopDownEstimate
+	Gap      string
 }
 
 // sampleRow is a sample's result with its uncertainty budget and
@@ -99,6 +108,13 @@ func (s *Pages) contextOf(ctx context.Context, cv *lab.Curve) (*curveContext, er
 	pol := calib.DefaultPolicy()
 	if m, err := s.Lab.GetMethodRevision(ctx, cv.Method, cv.MethodRevision); err == nil {
 		pol = m.Acceptance
+		if a, ok := m.Analyte(cv.Analyte); ok && a.Uncertainty != nil && a.Uncertainty.TopDownSource == lab.TopDownSourceHistory {
+			est, gap, err := rd.HistoryTopDown(ctx, cv.Method, cv.Analyte)
+			if err != nil {
+				return nil, err
+			}
+			out.TopDown = &topDownView{Estimate: est, Gap: gap}
+		}
 	} else if lab.KindOf(err) != lab.KindNotFound {
 		return nil, err
 	}

@@ -37,6 +37,7 @@ var uiPages = func() map[string]*template.Template {
 		"g3":         func(v float64) string { return sigFig(v, 3) },
 		"num":        func(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }, // a setting, as given
 		"pct100":     func(v float64) string { return strconv.FormatFloat(100*v, 'f', 1, 64) },
+		"pct2":       func(v float64) string { return strconv.FormatFloat(100*v, 'f', 2, 64) },
 		"pct":        func(v float64) string { return strconv.FormatFloat(v, 'f', 1, 64) },
 		"rfPct":      func(rf, mean float64) float64 { return 100 * rf / mean }, // an RF as a percentage of RF̄
 		"abs":        math.Abs,

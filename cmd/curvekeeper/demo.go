@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"math/rand/v2"
 	"net/http"
 	"net/http/httptest"
 	"slices"
@@ -81,6 +82,7 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 	if len(existing.Curves) == 0 {
 		// QA approved the older passing curves; the last week awaits review.
 		cutoff := now().AddDate(0, 0, -7)
+		vrng, uvRun := rand.New(rand.NewPCG(demoSeed, 11)), 0
 		for i, r := range demoRuns(now()) {
 			var created struct {
 				Curves []struct {
@@ -93,6 +95,16 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 				return fmt.Errorf("demo run %d: %w", i, err)
 			}
 			loaded++
+			// QC standards are measured on the passing nitrate curves (a failed
+			// curve is calibrated again, not verified).
+			if r.Method == demoNitrate && len(created.Curves) == 1 && created.Curves[0].Verdict == "pass" {
+				uvRun++
+				for _, v := range demoNitrateVerifications(vrng, r, uvRun) {
+					if err := d.do(tokens[lab.ScopeRunsWrite], http.MethodPost, "/v1/curves/"+created.Curves[0].ID+"/verifications", v, nil); err != nil {
+						return fmt.Errorf("demo verification: %w", err)
+					}
+				}
+			}
 			for _, c := range created.Curves {
 				if c.Verdict == "pass" && r.AcquiredAt.Before(cutoff) {
 					body := map[string]any{"decision": "approve", "reason": "reviewed in the weekly QA round (demo)"}
@@ -161,6 +173,8 @@ func demoCmd(ctx context.Context, args []string, getenv func(string) string, now
 		fmt.Fprintf(w, "  # nitrate results with their uncertainty budget and conformity (invented limit %g mg/L, guard band w = U):\n", demoNitrateLimit)
 		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" %s/v1/runs/%s/results\n", base, picks.nitrate)
 		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" -H 'Accept: application/fhir+json' %s/v1/runs/%s/results\n", base, picks.nitrate)
+		fmt.Fprintf(w, "  # the nitrate method's top-down uncertainty from its QC history (U is the larger of it and the budget):\n")
+		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" '%s/v1/methods/%s/top-down?analyte=NO3-N'\n", base, demoNitrate)
 	}
 	fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $INSTRUMENT\" -H 'Content-Type: text/csv' --data-binary @testdata/demo/nitrate-run.csv \\\n"+
 		"       '%s/v1/runs?method=%s&instrument=%s&acquired_at=%s'\n", base, demoNitrate, demoUVVis, now().UTC().Format("2006-01-02T15:04:05Z"))

@@ -62,8 +62,32 @@ func TestDemo(t *testing.T) {
 	checkDemoLCMS(t, first, count)
 	// The demo lab's certificates and stocks (demo_uncert.go): every run
 	// names the stocks of its analytes, all in date at the run.
-	if n := count(`SELECT count(*) FROM standard_materials`); n != 6 {
-		t.Errorf("standard materials = %d, want 6", n)
+	if n := count(`SELECT count(*) FROM standard_materials`); n != 7 {
+		t.Errorf("standard materials = %d, want 7", n)
+	}
+	// The nitrate QC history: an ICV and a CCV on each of the 9 passing
+	// UV-Vis curves and the certified control on every other one; the newest
+	// nitrate results took U as the larger of the budget and the top-down
+	// estimate from that history.
+	if n := count(`SELECT count(*) FROM verifications WHERE material = $1`, demoNitrateQCMaterial); n != 5 {
+		t.Errorf("verifications of %s = %d, want 5", demoNitrateQCMaterial, n)
+	}
+	if n := count(`SELECT count(*) FROM sample_results WHERE analyte = 'NO3-N' AND uncertainty->>'approach' = 'larger'
+		AND uncertainty->'top_down'->>'source' = 'history' AND (uncertainty->'top_down'->'history'->>'recoveries')::int >= 20`); n == 0 {
+		t.Errorf("no nitrate result took the top-down estimate from a history of at least 20 recoveries")
+	}
+	td, err := lab.NewService(db, lab.WithClock(clock)).TopDown(ctx, demoNitrate, "NO3-N", time.Time{}, time.Time{})
+	if err != nil {
+		t.Fatalf("top-down of the demo's nitrate: %v", err)
+	}
+	if td.Estimate.QCCount != 23 || td.Estimate.CRMCount != 5 || len(td.Notes) != 0 {
+		t.Errorf("demo nitrate top-down from %d recoveries and %d CRM results (notes %q), want 23 and 5 without a note",
+			td.Estimate.QCCount, td.Estimate.CRMCount, td.Notes)
+	}
+	t.Logf("demo nitrate top-down: u(Rw) %.4f, RMS bias %.4f, u(Cref) %.4f, u_c %.4f, U %.4f", td.Estimate.URw,
+		td.Estimate.RMSBias, td.Estimate.URef, td.Estimate.Combined, td.Estimate.Expanded)
+	if !strings.Contains(first, "/v1/methods/"+demoNitrate+"/top-down?analyte=NO3-N") {
+		t.Errorf("demo does not print the top-down route:\n%s", first)
 	}
 	if n := count(`SELECT count(DISTINCT run_id) FROM run_standard_materials`); n != 30 {
 		t.Errorf("runs naming their standard materials = %d, want 30", n)

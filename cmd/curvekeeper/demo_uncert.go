@@ -1,6 +1,7 @@
 package main
 
 import (
+	"math/rand/v2"
 	"net/http"
 	"slices"
 	"strings"
@@ -46,6 +47,38 @@ func demoMaterials(end time.Time) []demoMaterial {
 		out = append(out, demoMaterial{Code: strings.Replace(c.code, "CRM", "STOCK", 1), Kind: "stock_solution",
 			PreparedFrom: c.code, PreparedAt: &prepared, Preparation: step, ExpiresAt: end.AddDate(0, 3, 0)})
 	}
+	// A certified control at the middle of the nitrate range, measured as a
+	// verification standard: the bias data of the top-down estimate.
+	out = append(out, demoMaterial{Code: demoNitrateQCMaterial, Kind: "reference_material", Analyte: "NO3-N", Unit: "mg/L",
+		Value: demoNitrateQCValue, Expanded: 0.08, K: 2, Lot: "NQ-0077", Supplier: "invented reference supplier",
+		ExpiresAt: end.AddDate(1, 0, 0)})
+	return out
+}
+
+// The demo's certified nitrate control (value in mg/L).
+const (
+	demoNitrateQCMaterial = "DEMO-CRM-NO3N-QC"
+	demoNitrateQCValue    = 5.0
+)
+
+// demoNitrateVerifications are the verification standards measured
+// against a nitrate run's curve: an ICV and a CCV at 5 mg/L and, on every
+// other run (k odd), the certified control, read as 1.5 % high (an
+// invented small bias), all with a 1.5 % relative scatter. rng is the
+// verifications' own, so the runs' values stay as they were.
+func demoNitrateVerifications(rng *rand.Rand, r demoRun, k int) []map[string]any {
+	read := func(x float64) []float64 {
+		return []float64{round(interpolate(r.Standards, "NO3-N", x)*(1+0.015*rng.NormFloat64()), 5)}
+	}
+	at := func(m int) string { return r.AcquiredAt.Add(time.Duration(m) * time.Minute).Format(time.RFC3339) }
+	out := []map[string]any{
+		{"kind": "initial", "level": "ICV-5", "concentration": 5.0, "responses": read(5), "acquired_at": at(20)},
+		{"kind": "continuing", "level": "CCV-5", "concentration": 5.0, "responses": read(5), "acquired_at": at(90)},
+	}
+	if k%2 == 1 {
+		out = append(out, map[string]any{"kind": "continuing", "level": "CRM-5", "concentration": demoNitrateQCValue,
+			"responses": read(demoNitrateQCValue * 1.015), "acquired_at": at(60), "material": demoNitrateQCMaterial})
+	}
 	return out
 }
 
@@ -55,10 +88,12 @@ const demoNitrateLimit = 9.0
 
 // demoNitrateUncertainty is the nitrate method's uncertainty budget: the
 // calibration term, the run's certified stock, the repeatability of the
-// sample's two readings, k from t(ν_eff), and conformity with the invented
-// limit under a guard band w = U.
+// sample's two readings, k from t(ν_eff); U is the larger of that and the
+// top-down estimate from the QC history (the verification standards), and
+// conformity with the invented limit is judged under a guard band w = U.
 var demoNitrateUncertainty = map[string]any{
-	"terms":  []string{"calibration", "standards", "repeatability"},
+	"terms":    []string{"calibration", "standards", "repeatability"},
+	"approach": "larger", "top_down_source": "history",
 	"limits": map[string]any{"upper": demoNitrateLimit, "rule": "guard_band_u"},
 }
 
