@@ -110,7 +110,8 @@ type NLLSResult struct {
 //	min ‖ [√W·J·D⁻¹; √λ·I]·z + [−√W·r; 0] ‖,  δ = D⁻¹z,
 //
 // by Householder QR (householderQR, allocation-free): one factorisation of √W·J·D⁻¹ per
-// iteration, then one of the small [R; √λ·I] per trial λ, where r is the
+// iteration, then Givens rotations of √λ·I into its R per trial λ (MINPACK's
+// qrsolv), where r is the
 // residual vector, J the analytic Jacobian over the free parameters and
 // D = diag(dⱼ), dⱼ the largest ‖√W·Jⱼ‖ seen so far (so the damping is
 // invariant to rescaling the parameters). λ starts at 1e-3 and follows
@@ -141,7 +142,8 @@ func SolveNLLS(c Curve, x, y, w []float64, opt NLLSOptions) (NLLSResult, error) 
 		return NLLSResult{}, inputErr("points", "%d readings for %d free parameters", n, len(free))
 	}
 	s := newNLLSState(c, x, y, w, opt, free)
-	if !s.evalJacobian() {
+	s.ss = s.residuals(s.beta, s.r, s.jfull)
+	if !s.useJacobian() {
 		return NLLSResult{}, inputErr("start", "the model or its Jacobian is not finite at the starting parameters")
 	}
 	res := s.iterate()
@@ -235,17 +237,20 @@ type nllsState struct {
 	r       []float64 // √W·(y − f) at beta
 	rt      []float64 // the same at trial
 	f       []float64 // model values, scratch
-	jfull   []float64 // the Jacobian over all p parameters, column-major (column j at jfull[j*n:]), scratch
+	jfull   []float64 // the Jacobian over all p parameters at beta, column-major (column j at jfull[j*n:])
+	jfullT  []float64 // the same at trial (swapped with jfull when a step is taken)
 	jac     []float64 // √W·J over the free parameters, column-major: column l at jac[l*n:]
-	jacAt   bool      // jac and r belong to beta
+	jacAt   bool      // jac belongs to beta (else jfull does and jac is to be derived)
 	d       []float64 // Moré's column scales
 	ss      float64
 	ynorm   float64   // ‖√W·y‖
 	big     []float64 // [√W·J·D⁻¹ | √W·r], n×(k+1) column-major, factorised once per iteration
 	rk      []float64 // leading k×k block of R, row-major
 	qtr     []float64 // first k entries of Qᵀ·√W·r
-	small   []float64 // [R | Qᵀ·√W·r; √λ·I | 0], 2k×(k+1) column-major
-	z       []float64
+	small   []float64 // R of [R; √λ·I] (k×k row-major), built by step
+	z       []float64 // the scaled step D·δ
+	wa      []float64 // Qᵀ·√W·r rotated along with small
+	sdiag   []float64 // the row of √λ·I being rotated in
 	g       []float64 // Jᵀ·W·r over the free parameters
 	delta   []float64 // trial step
 	active  []bool    // free parameter held at a bound this iteration
@@ -256,7 +261,7 @@ func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nlls
 	n, p, k := len(x), c.NumParams(), len(free)
 	k1 := max(k, 1)
 	// One backing array for every float64 buffer.
-	sizes := []int{n, p, p, p, n, n, n, n * p, n * k, k, n * (k + 1), k * k, k, 2 * k1 * (k1 + 1), k1, k, k, n}
+	sizes := []int{n, p, p, p, n, n, n, n * p, n * p, n * k, k, n * (k + 1), k * k, k, k1 * k1, k1, k1, k1, k, k, n}
 	tot := 0
 	for _, v := range sizes {
 		tot += v
@@ -269,9 +274,9 @@ func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nlls
 	}
 	s := &nllsState{c: c, x: x, y: y, opt: opt, free: free}
 	s.sw, s.beta, s.trial, s.grad = take(n), take(p), take(p), take(p)
-	s.r, s.rt, s.f, s.jfull, s.jac = take(n), take(n), take(n), take(n*p), take(n*k)
+	s.r, s.rt, s.f, s.jfull, s.jfullT, s.jac = take(n), take(n), take(n), take(n*p), take(n*p), take(n*k)
 	s.d, s.big, s.rk, s.qtr = take(k), take(n*(k+1)), take(k*k), take(k)
-	s.small, s.z, s.g, s.delta = take(2*k1*(k1+1)), take(k1), take(k), take(k)
+	s.small, s.z, s.wa, s.sdiag, s.g, s.delta = take(k1*k1), take(k1), take(k1), take(k1), take(k), take(k)
 	copy(s.beta, opt.Start)
 	bools := make([]bool, k+p)
 	s.active, s.atBound = bools[:k:k], bools[k:]
@@ -292,13 +297,9 @@ func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nlls
 	return s
 }
 
-// eval sets s.f to the model at beta and, when jac, s.jfull to its
+// eval sets s.f to the model at beta and jf (n×p column-major) to its
 // Jacobian.
-func (s *nllsState) eval(beta []float64, jac bool) {
-	var jf []float64
-	if jac {
-		jf = s.jfull
-	}
+func (s *nllsState) eval(beta, jf []float64) {
 	if s.bc != nil {
 		s.bc.evalBatch(s.x, s.lx, beta, s.f, jf)
 		return
@@ -306,10 +307,6 @@ func (s *nllsState) eval(beta []float64, jac bool) {
 	n, p := len(s.x), len(beta)
 	g := s.grad
 	for i, xi := range s.x {
-		if !jac {
-			s.f[i] = s.c.Eval(xi, beta, nil)
-			continue
-		}
 		s.f[i] = s.c.Eval(xi, beta, g)
 		for j := 0; j < p; j++ {
 			jf[j*n+i] = g[j]
@@ -317,13 +314,18 @@ func (s *nllsState) eval(beta []float64, jac bool) {
 	}
 }
 
-// residuals sets r = √W·(y − f(x; beta)) and returns Σr², or NaN when a
-// value is not finite.
-func (s *nllsState) residuals(beta, r []float64) float64 {
-	s.eval(beta, false)
+// residuals sets r = √W·(y − f(x; beta)) and jf to the Jacobian at beta
+// (one pass: a step is taken far more often than not, and the next
+// iteration then needs no evaluation of its own) and returns Σr², or NaN
+// when a value is not finite.
+func (s *nllsState) residuals(beta, r, jf []float64) float64 {
+	s.eval(beta, jf)
+	n := len(s.x)
+	f, y, sw := s.f[:n], s.y[:n], s.sw[:n]
+	r = r[:n]
 	var ss float64
-	for i := range s.x {
-		ri := s.sw[i] * (s.y[i] - s.f[i])
+	for i, fi := range f {
+		ri := sw[i] * (y[i] - fi)
 		r[i] = ri
 		ss += ri * ri
 	}
@@ -333,32 +335,23 @@ func (s *nllsState) residuals(beta, r []float64) float64 {
 	return ss
 }
 
-// evalJacobian fills r, ss and the weighted Jacobian at beta and updates the
-// column scales; it reports whether everything is finite.
-func (s *nllsState) evalJacobian() bool {
-	s.eval(s.beta, true)
+// useJacobian derives the weighted Jacobian over the free parameters from
+// s.jfull (which belongs to beta, as do r and ss) and updates the column
+// scales; it reports whether everything is finite.
+func (s *nllsState) useJacobian() bool {
 	n := len(s.x)
-	s.ss = 0
-	for i := range s.x {
-		ri := s.sw[i] * (s.y[i] - s.f[i])
-		s.r[i] = ri
-		s.ss += ri * ri
-	}
 	sw := s.sw[:n]
-	for l, j := range s.free {
-		src, dst := s.jfull[j*n:j*n+n], s.jac[l*n:l*n+n]
-		for i, v := range src {
-			dst[i] = sw[i] * v
-		}
-	}
 	s.jacAt = true
 	if !Finite(s.ss) {
 		return false
 	}
-	for l := range s.free {
+	for l, j := range s.free {
+		src, dst := s.jfull[j*n:j*n+n], s.jac[l*n:l*n+n]
 		var nn float64
-		for _, v := range s.jac[l*n : l*n+n] {
-			nn += v * v
+		for i, v := range src {
+			a := sw[i] * v
+			dst[i] = a
+			nn += a * a
 		}
 		if !Finite(nn) {
 			return false
@@ -415,7 +408,7 @@ func (s *nllsState) iterate() NLLSResult {
 			ssNew := math.NaN()
 			if ok {
 				pred = s.predicted(delta)
-				ssNew = s.residuals(s.trial, s.rt)
+				ssNew = s.residuals(s.trial, s.rt, s.jfullT)
 			}
 			if !math.IsNaN(ssNew) {
 				act = s.ss - ssNew
@@ -437,7 +430,7 @@ func (s *nllsState) iterate() NLLSResult {
 				lambda = max(lambda, 1e-300)
 				nu = 2
 				if sn <= opt.XTol*bn {
-					if !s.evalJacobian() {
+					if !s.useJacobian() {
 						res.Outcome, res.Criterion = Stalled, "the Jacobian is not finite at the accepted parameters"
 						return res
 					}
@@ -454,7 +447,7 @@ func (s *nllsState) iterate() NLLSResult {
 			lambda *= nu
 			nu *= 2
 		}
-		if !s.evalJacobian() {
+		if !s.useJacobian() {
 			res.Outcome, res.Criterion = Stalled, "the Jacobian is not finite at the accepted parameters"
 			return res
 		}
@@ -570,35 +563,62 @@ func (s *nllsState) scale(l int) float64 {
 }
 
 // step solves the damped least-squares problem for λ,
-// min ‖[R; √λ·I]·z − [Qᵀ·√W·r; 0]‖ (by Householder QR of the 2k×k matrix,
-// then back substitution), into delta = D⁻¹z (in parameter units, zero for
-// held parameters) and sets s.trial to β + δ projected onto the box. It
-// reports whether the solve gave finite values.
+// min ‖[R; √λ·I]·z − [Qᵀ·√W·r; 0]‖, into delta = D⁻¹z (in parameter units,
+// zero for held parameters) and sets s.trial to β + δ projected onto the
+// box. It reports whether the solve gave finite values.
+//
+// The rows of √λ·I (1 for a held parameter, whose column of R is zero)
+// are rotated into R one at a time by Givens rotations, as in MINPACK's
+// qrsolv (Moré 1978), which keeps the triangle and costs O(k³) with no
+// refactorisation of the 2k×k matrix; back substitution then gives z.
 func (s *nllsState) step(lambda float64, delta []float64) bool {
 	k := len(s.free)
-	m := 2 * k
 	sl := math.Sqrt(lambda)
-	a := s.small[:m*(k+1)]
-	clear(a)
-	for l := 0; l < k; l++ {
-		col := a[l*m : l*m+m]
-		for j := 0; j <= l; j++ {
-			col[j] = s.rk[j*k+l]
+	a := s.small[:k*k] // row-major: (l, i) at a[l*k+i], i ≥ l
+	copy(a, s.rk)
+	wa, sdiag := s.wa[:k], s.sdiag[:k]
+	copy(wa, s.qtr)
+	for j := 0; j < k; j++ {
+		clear(sdiag[j:])
+		sdiag[j] = sl
+		if s.active[j] {
+			sdiag[j] = 1
 		}
-		col[k+l] = sl
-		if s.active[l] {
-			col[k+l] = 1
+		var qtbpj float64 // the rotated right-hand side of the row (0 at first)
+		for l := j; l < k; l++ {
+			sd := sdiag[l]
+			if sd == 0 {
+				continue
+			}
+			row := a[l*k : l*k+k]
+			rll := row[l]
+			var cs, sn float64
+			if math.Abs(rll) < math.Abs(sd) {
+				cot := rll / sd
+				sn = 0.5 / math.Sqrt(0.25+0.25*cot*cot)
+				cs = sn * cot
+			} else {
+				tan := sd / rll
+				cs = 0.5 / math.Sqrt(0.25+0.25*tan*tan)
+				sn = cs * tan
+			}
+			row[l] = cs*rll + sn*sd
+			wa[l], qtbpj = cs*wa[l]+sn*qtbpj, -sn*wa[l]+cs*qtbpj
+			tail, st := row[l+1:], sdiag[l+1:]
+			st = st[:len(tail)]
+			for i, v := range tail {
+				tail[i], st[i] = cs*v+sn*st[i], -sn*v+cs*st[i]
+			}
 		}
 	}
-	copy(a[k*m:k*m+k], s.qtr)
-	householderQR(a, m, k+1, k)
 	z := s.z[:k]
 	for j := k - 1; j >= 0; j-- {
-		v := a[k*m+j]
+		v := wa[j]
+		row := a[j*k : j*k+k]
 		for l := j + 1; l < k; l++ {
-			v -= a[l*m+j] * z[l]
+			v -= row[l] * z[l]
 		}
-		z[j] = v / a[j*m+j]
+		z[j] = v / row[j]
 	}
 	copy(s.trial, s.beta)
 	for l, j := range s.free {
@@ -646,9 +666,11 @@ func (s *nllsState) scaledNorms(delta []float64) (float64, float64) {
 	return math.Sqrt(a), math.Sqrt(b)
 }
 
-// accept makes the trial parameters current.
+// accept makes the trial parameters current, with the Jacobian evaluated
+// there.
 func (s *nllsState) accept() {
 	s.jacAt = false
+	s.jfull, s.jfullT = s.jfullT, s.jfull
 	copy(s.beta, s.trial)
 	copy(s.r, s.rt)
 	s.ss = 0
@@ -661,9 +683,10 @@ func (s *nllsState) accept() {
 // bounds and (when the Jacobian has full rank) the covariance.
 func (s *nllsState) finish(res NLLSResult) NLLSResult {
 	n, p, k := len(s.x), len(s.beta), len(s.free)
-	// The Jacobian matches beta unless the last accepted step ended the loop
-	// (by the SS criterion); then it is evaluated at the final parameters.
-	if !s.jacAt && !s.evalJacobian() {
+	// The weighted Jacobian matches beta unless the last accepted step ended
+	// the loop (by the SS criterion); then it is derived from the Jacobian
+	// evaluated with that step's residuals.
+	if !s.jacAt && !s.useJacobian() {
 		res.Outcome, res.Criterion = Stalled, "the Jacobian is not finite at the final parameters"
 	}
 	res.Params = append([]float64(nil), s.beta...)
