@@ -1,6 +1,10 @@
 package calib
 
-import "math"
+import (
+	"math"
+
+	"gonum.org/v1/gonum/floats"
+)
 
 // Curve is a model for non-linear least squares: a response function of one
 // predictor x and NumParams parameters β, with its analytic Jacobian.
@@ -245,13 +249,14 @@ type nllsState struct {
 	ss      float64
 	ynorm   float64   // ‖√W·y‖
 	big     []float64 // [√W·J·D⁻¹ | √W·r], n×(k+1) column-major, factorised once per iteration
-	rk      []float64 // leading k×k block of R, row-major
+	rk      []float64 // leading k×k block of R (of √W·J, unscaled), row-major
 	qtr     []float64 // first k entries of Qᵀ·√W·r
 	small   []float64 // R of [R; √λ·I] (k×k row-major), built by step
 	z       []float64 // the scaled step D·δ
 	wa      []float64 // Qᵀ·√W·r rotated along with small
 	sdiag   []float64 // the row of √λ·I being rotated in
 	g       []float64 // Jᵀ·W·r over the free parameters
+	cn      []float64 // ‖√W·Jⱼ‖² over the free parameters
 	delta   []float64 // trial step
 	active  []bool    // free parameter held at a bound this iteration
 	atBound []bool
@@ -261,7 +266,7 @@ func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nlls
 	n, p, k := len(x), c.NumParams(), len(free)
 	k1 := max(k, 1)
 	// One backing array for every float64 buffer.
-	sizes := []int{n, p, p, p, n, n, n, n * p, n * p, n * k, k, n * (k + 1), k * k, k, k1 * k1, k1, k1, k1, k, k, n}
+	sizes := []int{n, p, p, p, n, n, n, n * p, n * p, n * k, k, n * (k + 1), k * k, k, k1 * k1, k1, k1, k1, k, k, k, n}
 	tot := 0
 	for _, v := range sizes {
 		tot += v
@@ -277,6 +282,7 @@ func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nlls
 	s.r, s.rt, s.f, s.jfull, s.jfullT, s.jac = take(n), take(n), take(n), take(n*p), take(n*p), take(n*k)
 	s.d, s.big, s.rk, s.qtr = take(k), take(n*(k+1)), take(k*k), take(k)
 	s.small, s.z, s.wa, s.sdiag, s.g, s.delta = take(k1*k1), take(k1), take(k1), take(k1), take(k), take(k)
+	s.cn = take(k)
 	copy(s.beta, opt.Start)
 	bools := make([]bool, k+p)
 	s.active, s.atBound = bools[:k:k], bools[k:]
@@ -336,26 +342,30 @@ func (s *nllsState) residuals(beta, r, jf []float64) float64 {
 }
 
 // useJacobian derives the weighted Jacobian over the free parameters from
-// s.jfull (which belongs to beta, as do r and ss) and updates the column
-// scales; it reports whether everything is finite.
+// s.jfull (which belongs to beta, as do r and ss), its column norms, the
+// gradient Jᵀ·W·r, and updates the column scales; it reports whether
+// everything is finite.
 func (s *nllsState) useJacobian() bool {
 	n := len(s.x)
-	sw := s.sw[:n]
+	sw, r := s.sw[:n], s.r[:n]
 	s.jacAt = true
 	if !Finite(s.ss) {
 		return false
 	}
 	for l, j := range s.free {
 		src, dst := s.jfull[j*n:j*n+n], s.jac[l*n:l*n+n]
-		var nn float64
-		for i, v := range src {
-			a := sw[i] * v
+		src = src[:len(dst)]
+		var nn, gl float64
+		for i, v := range sw {
+			a := v * src[i]
 			dst[i] = a
 			nn += a * a
+			gl += a * r[i]
 		}
 		if !Finite(nn) {
 			return false
 		}
+		s.cn[l], s.g[l] = nn, gl
 		s.d[l] = max(s.d[l], math.Sqrt(nn))
 	}
 	return true
@@ -363,7 +373,6 @@ func (s *nllsState) useJacobian() bool {
 
 // iterate runs the Levenberg–Marquardt loop and returns how it ended.
 func (s *nllsState) iterate() NLLSResult {
-	n := len(s.x)
 	opt := s.opt
 	lambda, nu := 1e-3, 2.0
 	g, delta := s.g, s.delta
@@ -374,17 +383,10 @@ func (s *nllsState) iterate() NLLSResult {
 			res.Outcome, res.Criterion = Converged, "zero residual"
 			return res
 		}
-		// Gradient and the active set.
+		// Gradient (from useJacobian) and the active set.
 		gmax := 0.0
 		for l, j := range s.free {
-			var gl, cn float64
-			col := s.jac[l*n : l*n+n]
-			r := s.r[:n]
-			for i, a := range col {
-				gl += a * r[i]
-				cn += a * a
-			}
-			g[l] = gl
+			gl, cn := g[l], s.cn[l]
 			lo, hi := bounds(opt, j)
 			s.active[l] = (s.beta[j] <= lo && gl < 0) || (s.beta[j] >= hi && gl > 0)
 			if !s.active[l] && cn > 0 {
@@ -458,32 +460,30 @@ func (s *nllsState) iterate() NLLSResult {
 const nllsEps = 0x1p-52
 
 // factor computes, once per iteration, the Householder QR factorisation
-// of [√W·J·D⁻¹ | √W·r] (columns of held parameters zeroed): its leading
-// k×k block R and the first k entries of Qᵀ·√W·r reduce every trial step
-// of the iteration to a 2k×k problem (as in Moré's lmpar).
+// of [√W·J | √W·r] (columns of held parameters zeroed): its leading k×k
+// block R and the first k entries of Qᵀ·√W·r reduce every trial step of
+// the iteration to a k×k problem (as in Moré's lmpar). The scaling D⁻¹ of
+// the columns is applied to R afterwards (step): scaling a column scales
+// the same column of R and leaves Q as it is.
 func (s *nllsState) factor() {
 	n, k := len(s.x), len(s.free)
 	a := s.big
+	copy(a[:n*k], s.jac)
 	for l := 0; l < k; l++ {
-		col := a[l*n : l*n+n]
 		if s.active[l] {
-			clear(col)
-			continue
-		}
-		sc := s.scale(l)
-		for i, v := range s.jac[l*n : l*n+n] {
-			col[i] = v / sc
+			clear(a[l*n : l*n+n])
 		}
 	}
 	copy(a[k*n:k*n+n], s.r)
 	householderQR(a, n, k+1, k)
 	for j := 0; j < k; j++ {
-		for l := 0; l < k; l++ {
+		row := s.rk[j*k : j*k+k]
+		for l := range row {
 			v := 0.0
 			if l >= j {
 				v = a[l*n+j]
 			}
-			s.rk[j*k+l] = v
+			row[l] = v
 		}
 		s.qtr[j] = a[k*n+j]
 	}
@@ -514,16 +514,9 @@ func householderQR(a []float64, n, m, kc int) {
 		for l := j + 1; l < m; l++ {
 			cl := a[l*n : l*n+n]
 			cr := cl[j+1:]
-			cr = cr[:len(v)]
-			w := cl[j]
-			for i, vi := range v {
-				w += vi * cr[i]
-			}
-			w *= tau
+			w := tau * (cl[j] + floats.Dot(v, cr))
 			cl[j] -= w
-			for i, vi := range v {
-				cr[i] -= w * vi
-			}
+			floats.AddScaled(cr, -w, v)
 		}
 	}
 }
@@ -531,10 +524,7 @@ func householderQR(a []float64, n, m, kc int) {
 // norm2 is the Euclidean norm of v: a plain sum of squares, redone scaled
 // by the largest |vᵢ| when that sum over- or underflows.
 func norm2(v []float64) float64 {
-	var ss float64
-	for _, x := range v {
-		ss += x * x
-	}
+	ss := floats.Dot(v, v)
 	if ss > 0x1p-900 && ss < 0x1p900 {
 		return math.Sqrt(ss)
 	}
@@ -574,8 +564,16 @@ func (s *nllsState) scale(l int) float64 {
 func (s *nllsState) step(lambda float64, delta []float64) bool {
 	k := len(s.free)
 	sl := math.Sqrt(lambda)
-	a := s.small[:k*k] // row-major: (l, i) at a[l*k+i], i ≥ l
-	copy(a, s.rk)
+	a := s.small[:k*k] // R·D⁻¹, row-major: (l, i) at a[l*k+i], i ≥ l
+	for l := 0; l < k; l++ {
+		a[l*k+l] = s.rk[l*k+l] / s.scale(l)
+	}
+	for l := 0; l < k; l++ {
+		sc := s.scale(l)
+		for j := 0; j < l; j++ {
+			a[j*k+l] = s.rk[j*k+l] / sc
+		}
+	}
 	wa, sdiag := s.wa[:k], s.sdiag[:k]
 	copy(wa, s.qtr)
 	for j := 0; j < k; j++ {
@@ -638,22 +636,22 @@ func (s *nllsState) step(lambda float64, delta []float64) bool {
 }
 
 // predicted is the reduction of SS predicted by the linearised model for
-// the (projected) step δ: ‖r‖² − ‖r − J·δ‖² = Σ (J·δ)ᵢ(2rᵢ − (J·δ)ᵢ),
-// summed in that form so that it does not cancel against ‖r‖².
+// the (projected) step δ: ‖r‖² − ‖r − J·δ‖² = 2·gᵀδ − ‖J·δ‖², with
+// g = Jᵀ·W·r and ‖J·δ‖ = ‖R·δ‖ from the iteration's factor (held
+// parameters have δ = 0 and a zeroed column).
 func (s *nllsState) predicted(delta []float64) float64 {
-	n := len(s.x)
-	jd := s.f[:n] // scratch: the model values are not needed between passes
-	clear(jd)
-	for l, dl := range delta {
-		for i, v := range s.jac[l*n : l*n+n] {
-			jd[i] += v * dl
+	k := len(s.free)
+	var gd, jd2 float64
+	for j := 0; j < k; j++ {
+		gd += s.g[j] * delta[j]
+		row := s.rk[j*k : j*k+k]
+		var v float64
+		for l := j; l < k; l++ {
+			v += row[l] * delta[l]
 		}
+		jd2 += v * v
 	}
-	var pred float64
-	for i, v := range jd {
-		pred += v * (2*s.r[i] - v)
-	}
-	return pred
+	return 2*gd - jd2
 }
 
 // scaledNorms returns ‖D·δ‖ and ‖D·β‖ over the free parameters.
