@@ -34,9 +34,9 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 	}
 	pr.Flags = r.Range.appendFlags(pr.Flags, x0)
 	pr.Concentration = x0 * pr.Dilution
-	grad := make([]float64, len(beta))
-	_, v := r.unknownVar(c, x0, m, grad)
-	se := math.Sqrt(v) / math.Abs(c.slope(x0, beta))
+	cv := r.newCurveVar(c, m)
+	_, v, sl := cv.at(x0)
+	se := math.Sqrt(v) / math.Abs(sl)
 	if Finite(se) {
 		pr.StandardError = se * pr.Dilution
 	}
@@ -44,7 +44,7 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 	// gap(x) ≥ 0 ⇔ ȳ0 lies inside the band at x (−Inf where the band is
 	// not finite).
 	gap := func(x float64) float64 {
-		fx, v := r.unknownVar(c, x, m, grad)
+		fx, v, _ := cv.at(x)
 		if !Finite(fx, v) {
 			return math.Inf(-1)
 		}
