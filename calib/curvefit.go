@@ -86,7 +86,13 @@ func FitCurve(x, y, w []float64, opt CurveOptions) (*CurveFit, error) {
 		}
 	}
 	n := len(x)
-	wn := make([]float64, n)
+	wl := make([]float64, 2*n)
+	// wn: the weights on the Σw = n scale; lx: ln x (−Inf at 0), shared by
+	// the self-start and the solver.
+	wn, lx := wl[:n:n], wl[n:]
+	for i, v := range x {
+		lx[i] = math.Log(v)
+	}
 	var sw float64
 	for i := range wn {
 		wn[i] = 1
@@ -107,7 +113,7 @@ func FitCurve(x, y, w []float64, opt CurveOptions) (*CurveFit, error) {
 	for j := range opt.Fixed {
 		fixed[j] = !math.IsNaN(opt.Fixed[j])
 	}
-	start, err := selfStart(opt.Model, x, y, wn, opt, lower, upper)
+	start, err := selfStart(opt.Model, x, lx, y, wn, opt, lower, upper)
 	if err != nil {
 		return nil, err
 	}
@@ -122,7 +128,7 @@ func FitCurve(x, y, w []float64, opt CurveOptions) (*CurveFit, error) {
 			return nil, inputErr("options.start", "coefficient %d: %v lies outside its bounds [%v, %v]", j, start[j], lower[j], upper[j])
 		}
 	}
-	res, err := SolveNLLS(c, x, y, wn, NLLSOptions{Start: start, Fixed: fixed, Lower: lower, Upper: upper, MaxIter: opt.MaxIter})
+	res, err := solveNLLS(c, x, lx, y, wn, NLLSOptions{Start: start, Fixed: fixed, Lower: lower, Upper: upper, MaxIter: opt.MaxIter})
 	if err != nil {
 		return nil, err
 	}

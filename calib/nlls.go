@@ -131,21 +131,27 @@ type NLLSResult struct {
 // Every other ending is a typed Outcome, never an error: the caller reads
 // Outcome before using the parameters.
 func SolveNLLS(c Curve, x, y, w []float64, opt NLLSOptions) (NLLSResult, error) {
+	return solveNLLS(c, x, nil, y, w, opt)
+}
+
+// solveNLLS is SolveNLLS given lx[i] = ln x[i] (nil: computed here when
+// the curve evaluates in batches).
+func solveNLLS(c Curve, x, lx, y, w []float64, opt NLLSOptions) (NLLSResult, error) {
 	p := c.NumParams()
 	n := len(x)
 	if err := checkNLLSInput(p, x, y, w, &opt); err != nil {
 		return NLLSResult{}, err
 	}
-	free := make([]int, 0, p)
+	k := 0
 	for j := 0; j < p; j++ {
 		if opt.Fixed == nil || !opt.Fixed[j] {
-			free = append(free, j)
+			k++
 		}
 	}
-	if n <= len(free) {
-		return NLLSResult{}, inputErr("points", "%d readings for %d free parameters", n, len(free))
+	if n <= k {
+		return NLLSResult{}, inputErr("points", "%d readings for %d free parameters", n, k)
 	}
-	s := newNLLSState(c, x, y, w, opt, free)
+	s := newNLLSState(c, x, lx, y, w, opt, k)
 	s.ss = s.residuals(s.beta, s.r, s.jfull)
 	if !s.useJacobian() {
 		return NLLSResult{}, inputErr("start", "the model or its Jacobian is not finite at the starting parameters")
@@ -259,17 +265,17 @@ type nllsState struct {
 	cn      []float64 // ‖√W·Jⱼ‖² over the free parameters
 	delta   []float64 // trial step
 	active  []bool    // free parameter held at a bound this iteration
-	atBound []bool
 }
 
-func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nllsState {
-	n, p, k := len(x), c.NumParams(), len(free)
+func newNLLSState(c Curve, x, lx, y, w []float64, opt NLLSOptions, k int) *nllsState {
+	n, p := len(x), c.NumParams()
 	k1 := max(k, 1)
-	// One backing array for every float64 buffer.
-	sizes := []int{n, p, p, p, n, n, n, n * p, n * p, n * k, k, n * (k + 1), k * k, k, k1 * k1, k1, k1, k1, k, k, k, n}
-	tot := 0
-	for _, v := range sizes {
-		tot += v
+	bc, batch := c.(batchCurve)
+	// One backing array for every float64 buffer (the covariance at the end
+	// reuses big and small).
+	tot := 4*n + 3*p + 2*n*p + n*k + n*(k+1) + k*k + k1*k1 + 3*k1 + 5*k
+	if batch && lx == nil {
+		tot += n
 	}
 	buf := make([]float64, tot)
 	take := func(m int) []float64 {
@@ -277,20 +283,38 @@ func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nlls
 		buf = buf[m:]
 		return v
 	}
-	s := &nllsState{c: c, x: x, y: y, opt: opt, free: free}
+	type state struct { // the state, its free list and flags in one allocation
+		s    nllsState
+		free [8]int
+		act  [8]bool
+	}
+	st := &state{}
+	s := &st.s
+	s.c, s.x, s.y, s.opt = c, x, y, opt
+	if p <= len(st.free) {
+		s.free, s.active = st.free[:0:p], st.act[:k:k]
+	} else {
+		s.free, s.active = make([]int, 0, p), make([]bool, k)
+	}
+	for j := 0; j < p; j++ {
+		if opt.Fixed == nil || !opt.Fixed[j] {
+			s.free = append(s.free, j)
+		}
+	}
 	s.sw, s.beta, s.trial, s.grad = take(n), take(p), take(p), take(p)
 	s.r, s.rt, s.f, s.jfull, s.jfullT, s.jac = take(n), take(n), take(n), take(n*p), take(n*p), take(n*k)
 	s.d, s.big, s.rk, s.qtr = take(k), take(n*(k+1)), take(k*k), take(k)
 	s.small, s.z, s.wa, s.sdiag, s.g, s.delta = take(k1*k1), take(k1), take(k1), take(k1), take(k), take(k)
 	s.cn = take(k)
 	copy(s.beta, opt.Start)
-	bools := make([]bool, k+p)
-	s.active, s.atBound = bools[:k:k], bools[k:]
-	if bc, ok := c.(batchCurve); ok {
+	if batch {
 		s.bc = bc
-		s.lx = take(n)
-		for i, v := range x {
-			s.lx[i] = math.Log(v)
+		s.lx = lx
+		if lx == nil {
+			s.lx = take(n)
+			for i, v := range x {
+				s.lx[i] = math.Log(v)
+			}
 		}
 	}
 	for i := range s.sw {
@@ -298,8 +322,9 @@ func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nlls
 		if w != nil {
 			s.sw[i] = math.Sqrt(w[i])
 		}
-		s.ynorm = math.Hypot(s.ynorm, s.sw[i]*y[i])
+		s.rt[i] = s.sw[i] * y[i] // scratch until the first trial
 	}
+	s.ynorm = norm2(s.rt)
 	return s
 }
 
@@ -687,8 +712,12 @@ func (s *nllsState) finish(res NLLSResult) NLLSResult {
 	if !s.jacAt && !s.useJacobian() {
 		res.Outcome, res.Criterion = Stalled, "the Jacobian is not finite at the final parameters"
 	}
-	res.Params = append([]float64(nil), s.beta...)
-	res.Residuals = make([]float64, n)
+	// The result's arrays share one backing array (each capped to its
+	// length).
+	out := make([]float64, p+n+p*p+p)
+	res.Params = out[:p:p]
+	copy(res.Params, s.beta)
+	res.Residuals = out[p : p+n : p+n]
 	for i := range s.x {
 		res.Residuals[i] = s.r[i] / s.sw[i]
 	}
@@ -703,13 +732,13 @@ func (s *nllsState) finish(res NLLSResult) NLLSResult {
 	if res.Outcome != Converged && res.Outcome != Stalled || k == 0 {
 		return res
 	}
-	cov, ok := s.covariance(res.ResidualSD)
-	if !ok {
+	cov := s.small[:k*k]
+	if !s.covariance(res.ResidualSD, cov) {
 		res.Outcome, res.Criterion = Singular, "the Jacobian at the solution is numerically rank-deficient: some parameter combination is not determined by the data"
 		return res
 	}
 	res.Covariance = make([][]float64, p)
-	cb := make([]float64, p*p+p)
+	cb := out[p+n:]
 	res.StdErrors = cb[p*p:]
 	for j := range res.Covariance {
 		res.Covariance[j] = cb[j*p : j*p+p : j*p+p]
@@ -723,20 +752,27 @@ func (s *nllsState) finish(res NLLSResult) NLLSResult {
 	return res
 }
 
-// covariance returns s²(JᵀWJ)⁻¹ (k×k row-major over the free parameters)
-// from the Householder QR factor of √W·J with columns scaled to unit norm,
-// and false when that factor is numerically singular.
-func (s *nllsState) covariance(sd float64) ([]float64, bool) {
+// covariance sets cov to s²(JᵀWJ)⁻¹ (k×k row-major over the free
+// parameters) from the Householder QR factor of √W·J with columns scaled
+// to unit norm, and reports false when that factor is numerically
+// singular. It works in s.big and s.z.
+func (s *nllsState) covariance(sd float64, cov []float64) bool {
 	n, k := len(s.x), len(s.free)
-	work := make([]float64, n*k+k+2*k*k)
-	a, sc, ri, cov := work[:n*k], work[n*k:n*k+k], work[n*k+k:n*k+k+k*k], work[n*k+k+k*k:]
+	a, sc := s.big[:n*k], s.z[:k]
+	var riBuf [25]float64
+	ri := riBuf[:0]
+	if k*k <= len(riBuf) {
+		ri = riBuf[:k*k]
+	} else {
+		ri = make([]float64, k*k)
+	}
 	for l := 0; l < k; l++ {
 		var nn float64
 		for _, v := range s.jac[l*n : l*n+n] {
 			nn += v * v
 		}
 		if !(nn > 0) || math.Sqrt(nn)*math.Abs(s.beta[s.free[l]]) <= 1e-12*s.ynorm {
-			return nil, false
+			return false
 		}
 		sc[l] = 1 / math.Sqrt(nn)
 		for i, v := range s.jac[l*n : l*n+n] {
@@ -751,7 +787,7 @@ func (s *nllsState) covariance(sd float64) ([]float64, bool) {
 	}
 	for l := 0; l < k; l++ {
 		if !(math.Abs(r(l, l)) > 1e-12*maxd) {
-			return nil, false
+			return false
 		}
 	}
 	// R⁻¹ by back substitution; (AᵀA)⁻¹ = R⁻¹R⁻ᵀ.
@@ -777,8 +813,8 @@ func (s *nllsState) covariance(sd float64) ([]float64, bool) {
 	}
 	for _, v := range cov {
 		if !Finite(v) {
-			return nil, false
+			return false
 		}
 	}
-	return cov, true
+	return true
 }
