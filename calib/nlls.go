@@ -114,7 +114,7 @@ type NLLSResult struct {
 //	min ‖ [√W·J·D⁻¹; √λ·I]·z + [−√W·r; 0] ‖,  δ = D⁻¹z,
 //
 // by Householder QR (householderQR, allocation-free): one factorisation of √W·J·D⁻¹ per
-// iteration, then Givens rotations of √λ·I into its R per trial λ (MINPACK's
+// iteration, then Givens rotations of √λ·D into its R per trial λ (MINPACK's
 // qrsolv), where r is the
 // residual vector, J the analytic Jacobian over the free parameters and
 // D = diag(dⱼ), dⱼ the largest ‖√W·Jⱼ‖ seen so far (so the damping is
@@ -258,7 +258,7 @@ type nllsState struct {
 	rk      []float64 // leading k×k block of R (of √W·J, unscaled), row-major
 	qtr     []float64 // first k entries of Qᵀ·√W·r
 	small   []float64 // R of [R; √λ·I] (k×k row-major), built by step
-	z       []float64 // the scaled step D·δ
+	z       []float64 // scratch of the covariance
 	wa      []float64 // Qᵀ·√W·r rotated along with small
 	sdiag   []float64 // the row of √λ·I being rotated in
 	g       []float64 // Jᵀ·W·r over the free parameters
@@ -578,34 +578,31 @@ func (s *nllsState) scale(l int) float64 {
 }
 
 // step solves the damped least-squares problem for λ,
-// min ‖[R; √λ·I]·z − [Qᵀ·√W·r; 0]‖, into delta = D⁻¹z (in parameter units,
-// zero for held parameters) and sets s.trial to β + δ projected onto the
-// box. It reports whether the solve gave finite values.
+// min ‖[R·D⁻¹; √λ·I]·z − [Qᵀ·√W·r; 0]‖, δ = D⁻¹z, in parameter units as
+// min ‖[R; √λ·D]·δ − [Qᵀ·√W·r; 0]‖ (zero for held parameters, whose row
+// of the diagonal is dⱼ and whose column of R is zero), and sets s.trial
+// to β + δ projected onto the box. It reports whether the solve gave
+// finite values.
 //
-// The rows of √λ·I (1 for a held parameter, whose column of R is zero)
-// are rotated into R one at a time by Givens rotations, as in MINPACK's
-// qrsolv (Moré 1978), which keeps the triangle and costs O(k³) with no
-// refactorisation of the 2k×k matrix; back substitution then gives z.
+// The rows of the diagonal are rotated into R one at a time by Givens
+// rotations, as in MINPACK's qrsolv (Moré 1978), which keeps the triangle
+// and costs O(k³) with no refactorisation of the 2k×k matrix; back
+// substitution then gives δ.
 func (s *nllsState) step(lambda float64, delta []float64) bool {
 	k := len(s.free)
 	sl := math.Sqrt(lambda)
-	a := s.small[:k*k] // R·D⁻¹, row-major: (l, i) at a[l*k+i], i ≥ l
-	for l := 0; l < k; l++ {
-		a[l*k+l] = s.rk[l*k+l] / s.scale(l)
-	}
-	for l := 0; l < k; l++ {
-		sc := s.scale(l)
-		for j := 0; j < l; j++ {
-			a[j*k+l] = s.rk[j*k+l] / sc
-		}
-	}
+	a := s.small[:k*k] // R, row-major: (l, i) at a[l*k+i], i ≥ l
+	copy(a, s.rk)
 	wa, sdiag := s.wa[:k], s.sdiag[:k]
 	copy(wa, s.qtr)
+	delta = delta[:k]
 	for j := 0; j < k; j++ {
-		clear(sdiag[j:])
-		sdiag[j] = sl
-		if s.active[j] {
-			sdiag[j] = 1
+		for i := j + 1; i < k; i++ {
+			sdiag[i] = 0
+		}
+		sdiag[j] = s.scale(j)
+		if !s.active[j] {
+			sdiag[j] *= sl
 		}
 		var qtbpj float64 // the rotated right-hand side of the row (0 at first)
 		for l := j; l < k; l++ {
@@ -613,8 +610,7 @@ func (s *nllsState) step(lambda float64, delta []float64) bool {
 			if sd == 0 {
 				continue
 			}
-			row := a[l*k : l*k+k]
-			rll := row[l]
+			rll := a[l*k+l]
 			var cs, sn float64
 			if math.Abs(rll) < math.Abs(sd) {
 				cot := rll / sd
@@ -625,27 +621,24 @@ func (s *nllsState) step(lambda float64, delta []float64) bool {
 				cs = 0.5 / math.Sqrt(0.25+0.25*tan*tan)
 				sn = cs * tan
 			}
-			row[l] = cs*rll + sn*sd
+			a[l*k+l] = cs*rll + sn*sd
 			wa[l], qtbpj = cs*wa[l]+sn*qtbpj, -sn*wa[l]+cs*qtbpj
-			tail, st := row[l+1:], sdiag[l+1:]
-			st = st[:len(tail)]
-			for i, v := range tail {
-				tail[i], st[i] = cs*v+sn*st[i], -sn*v+cs*st[i]
+			for i := l + 1; i < k; i++ {
+				v, t := a[l*k+i], sdiag[i]
+				a[l*k+i], sdiag[i] = cs*v+sn*t, -sn*v+cs*t
 			}
 		}
 	}
-	z := s.z[:k]
 	for j := k - 1; j >= 0; j-- {
 		v := wa[j]
-		row := a[j*k : j*k+k]
 		for l := j + 1; l < k; l++ {
-			v -= row[l] * z[l]
+			v -= a[j*k+l] * delta[l]
 		}
-		z[j] = v / row[j]
+		delta[j] = v / a[j*k+j]
 	}
 	copy(s.trial, s.beta)
 	for l, j := range s.free {
-		v := z[l] / s.scale(l)
+		v := delta[l]
 		if s.active[l] {
 			v = 0
 		}
