@@ -79,7 +79,8 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 // in log x to 1e-13 relative by regula falsi with the Illinois
 // modification (which converges superlinearly on the smooth gap and moves
 // both ends), bisecting when an interpolated point is not finite or not
-// inside the bracket; +Inf going up and 0 going down when the band never
+// inside the bracket and stepping inside by edgeStep from an end it
+// would land next to; +Inf going up and 0 going down when the band never
 // closes.
 func (r *Report) bandEdge(gap func(float64) float64, x0 float64, dir int, step float64) float64 {
 	lim := r.Range.High * 1e6
@@ -145,6 +146,19 @@ func (r *Report) bandEdge(gap func(float64) float64, x0 float64, dir int, step f
 			if u := ui + (uo-ui)*gin/(gin-gout); u > min(ui, uo) && u < max(ui, uo) {
 				um = u
 			}
+			// A point within edgeStep of an end moves inside by edgeStep
+			// (Brent's safeguard): once an end lies next to the crossing,
+			// whose gap is then at rounding level, the next evaluation
+			// closes the bracket to the tolerance instead of the
+			// interpolation landing on that end and bisection taking over.
+			if math.Abs(uo-ui) > 2*edgeStep {
+				switch {
+				case math.Abs(um-uo) < edgeStep:
+					um = uo + math.Copysign(edgeStep, ui-uo)
+				case math.Abs(um-ui) < edgeStep:
+					um = ui + math.Copysign(edgeStep, uo-ui)
+				}
+			}
 		}
 		xm := math.Exp(um)
 		if !(xm > min(in, out) && xm < max(in, out)) {
@@ -171,6 +185,10 @@ func (r *Report) bandEdge(gap func(float64) float64, x0 float64, dir int, step f
 	}
 	return in
 }
+
+// edgeStep is the safeguard step of bandEdge in ln x: 0.4 of its
+// tolerance of 1e-13 relative.
+const edgeStep = 0.4e-13
 
 // curveMeanBand is MeanBand for a non-linear model: t·√(∇βfᵀ·Cov·∇βf),
 // the delta-method band of the fitted curve.
