@@ -154,7 +154,7 @@ func checkCurveData(x, y, w []float64) error {
 	if len(y) != len(x) || (w != nil && len(w) != len(x)) {
 		return inputErr("points", "x, y and weights differ in length")
 	}
-	var pos []float64
+	pos, distinct := math.NaN(), false // a positive concentration; a second one seen
 	for i := range x {
 		if !Finite(x[i], y[i]) {
 			return inputErr("points", "reading %d is not finite", i)
@@ -165,11 +165,14 @@ func checkCurveData(x, y, w []float64) error {
 		if w != nil && !(w[i] > 0 && !math.IsInf(w[i], 0)) {
 			return inputErr("weights", "weight %d is not positive and finite", i)
 		}
-		if x[i] > 0 && !slices.Contains(pos, x[i]) {
-			pos = append(pos, x[i])
+		if x[i] > 0 {
+			if math.IsNaN(pos) {
+				pos = x[i]
+			}
+			distinct = distinct || x[i] != pos
 		}
 	}
-	if len(pos) < 2 {
+	if !distinct {
 		return inputErr("points", "at least two distinct positive concentrations are needed")
 	}
 	if slices.Min(y) == slices.Max(y) {
@@ -196,7 +199,8 @@ func curveBounds(m Model, x []float64) (lower, upper []float64) {
 		xmax = max(xmax, v)
 	}
 	p := curveOf(m).NumParams()
-	lower, upper = make([]float64, p), make([]float64, p)
+	lu := make([]float64, 2*p)
+	lower, upper = lu[:p:p], lu[p:]
 	for j := range lower {
 		lower[j], upper[j] = math.Inf(-1), math.Inf(1)
 	}

@@ -322,7 +322,8 @@ func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
 	// A calibration has few levels: a linear search finds each reading's.
 	// One backing array holds the levels and one their reading indices.
 	store := make([]curveLevel, 0, len(pidx))
-	of := make([]int, len(pidx)) // level of each reading
+	ints := make([]int, 3*len(pidx))
+	of := ints[:len(pidx)] // level of each reading
 	for k, i := range pidx {
 		p := points[i]
 		li := -1
@@ -338,11 +339,11 @@ func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
 		}
 		of[k] = li
 	}
-	count := make([]int, len(store))
+	count := ints[len(pidx) : len(pidx)+len(store)]
 	for _, li := range of {
 		count[li]++
 	}
-	idx := make([]int, len(pidx))
+	idx := ints[2*len(pidx):]
 	out := make([]*curveLevel, len(store))
 	at := 0
 	for j := range store {
@@ -633,9 +634,13 @@ func medianReplicates(levels []*curveLevel) int {
 	if len(levels) == 0 {
 		return 1
 	}
-	n := make([]int, len(levels))
-	for i, l := range levels {
-		n[i] = len(l.idx)
+	var buf [16]int
+	n := buf[:0]
+	if len(levels) > len(buf) {
+		n = make([]int, 0, len(levels))
+	}
+	for _, l := range levels {
+		n = append(n, len(l.idx))
 	}
 	slices.Sort(n)
 	return max(1, n[len(n)/2])
@@ -821,7 +826,16 @@ func (cv *curveVar) at(x float64) (fx, v, slope float64) {
 
 // atU is at for a logistic at x > 0 given u = ln(x/c).
 func (cv *curveVar) atU(u, x float64) (fx, v, slope float64) {
-	l := logistic{five: cv.five}
+	if !cv.five {
+		// The 4PL written out (evalU and evalSlope with g = 1).
+		a, b, c, d := cv.beta[0], cv.beta[1], cv.beta[2], cv.beta[3]
+		h, lg, _ := core4(b * u)
+		k := (a - d) * h * lg
+		g := [4]float64{h, -k * u, k * b / c, lg}
+		fx = d + (a-d)*h
+		return fx, cv.varAt(x, fx, g[:]), -(a - d) * (h * lg) * b / x
+	}
+	l := logistic{five: true}
 	var ga [5]float64
 	g := ga[:l.NumParams()]
 	fx, hl := l.evalU(u, cv.beta, g)

@@ -234,37 +234,37 @@ type batchCurve interface {
 // nllsState is the working state of one SolveNLLS call. Every buffer is
 // allocated once, in newNLLSState; an iteration allocates nothing.
 type nllsState struct {
-	c       Curve
-	bc      batchCurve // c as a batchCurve, or nil
-	x, y    []float64
-	lx      []float64 // ln xᵢ (with bc)
-	sw      []float64 // √wᵢ
-	opt     NLLSOptions
-	free    []int
-	beta    []float64 // current parameters (all p)
-	trial   []float64
-	grad    []float64 // scratch gradient of a Curve without evalBatch
-	r       []float64 // √W·(y − f) at beta
-	rt      []float64 // the same at trial
-	f       []float64 // model values, scratch
-	jfull   []float64 // the Jacobian over all p parameters at beta, column-major (column j at jfull[j*n:])
-	jfullT  []float64 // the same at trial (swapped with jfull when a step is taken)
-	jac     []float64 // √W·J over the free parameters, column-major: column l at jac[l*n:]
-	jacAt   bool      // jac belongs to beta (else jfull does and jac is to be derived)
-	d       []float64 // Moré's column scales
-	ss      float64
-	ynorm   float64   // ‖√W·y‖
-	big     []float64 // [√W·J·D⁻¹ | √W·r], n×(k+1) column-major, factorised once per iteration
-	rk      []float64 // leading k×k block of R (of √W·J, unscaled), row-major
-	qtr     []float64 // first k entries of Qᵀ·√W·r
-	small   []float64 // R of [R; √λ·I] (k×k row-major), built by step
-	z       []float64 // scratch of the covariance
-	wa      []float64 // Qᵀ·√W·r rotated along with small
-	sdiag   []float64 // the row of √λ·I being rotated in
-	g       []float64 // Jᵀ·W·r over the free parameters
-	cn      []float64 // ‖√W·Jⱼ‖² over the free parameters
-	delta   []float64 // trial step
-	active  []bool    // free parameter held at a bound this iteration
+	c      Curve
+	bc     batchCurve // c as a batchCurve, or nil
+	x, y   []float64
+	lx     []float64 // ln xᵢ (with bc)
+	sw     []float64 // √wᵢ
+	opt    NLLSOptions
+	free   []int
+	beta   []float64 // current parameters (all p)
+	trial  []float64
+	grad   []float64 // scratch gradient of a Curve without evalBatch
+	r      []float64 // √W·(y − f) at beta
+	rt     []float64 // the same at trial
+	f      []float64 // model values, scratch
+	jfull  []float64 // the Jacobian over all p parameters at beta, column-major (column j at jfull[j*n:])
+	jfullT []float64 // the same at trial (swapped with jfull when a step is taken)
+	jac    []float64 // √W·J over the free parameters, column-major: column l at jac[l*n:]
+	jacAt  bool      // jac belongs to beta (else jfull does and jac is to be derived)
+	d      []float64 // Moré's column scales
+	ss     float64
+	ynorm  float64   // ‖√W·y‖
+	big    []float64 // [√W·J·D⁻¹ | √W·r], n×(k+1) column-major, factorised once per iteration
+	rk     []float64 // leading k×k block of R (of √W·J, unscaled), row-major
+	qtr    []float64 // first k entries of Qᵀ·√W·r
+	small  []float64 // R of [R; √λ·I] (k×k row-major), built by step
+	z      []float64 // scratch of the covariance
+	wa     []float64 // Qᵀ·√W·r rotated along with small
+	sdiag  []float64 // the row of √λ·I being rotated in
+	g      []float64 // Jᵀ·W·r over the free parameters
+	cn     []float64 // ‖√W·Jⱼ‖² over the free parameters
+	delta  []float64 // trial step
+	active []bool    // free parameter held at a bound this iteration
 }
 
 func newNLLSState(c Curve, x, lx, y, w []float64, opt NLLSOptions, k int) *nllsState {
