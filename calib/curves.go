@@ -173,9 +173,9 @@ func (l logistic) evalU(u float64, beta, grad []float64) (float64, float64) {
 
 // evalBatch is Eval over every reading, with lx[i] = ln x[i] given (the
 // solver computes it once): f[i] = f(x[i]; β) and, when jac is not nil, the
-// gradients column-major, ∂f/∂βⱼ at x[i] in jac[j*n+i]. ln c (and for the
-// 4PL a − d and b/c) are taken once.
-func (l logistic) evalBatch(x, lx, beta, f, jac []float64) {
+// gradients column-major and weighted, sw[i]·∂f/∂βⱼ at x[i] in jac[j*n+i].
+// ln c (and for the 4PL a − d and b/c) are taken once.
+func (l logistic) evalBatch(x, lx, sw, beta, f, jac []float64) {
 	n, p := len(x), l.NumParams()
 	f, lx = f[:n], lx[:n]
 	if !(beta[2] > 0) {
@@ -186,7 +186,7 @@ func (l logistic) evalBatch(x, lx, beta, f, jac []float64) {
 	}
 	lc := math.Log(beta[2])
 	if !l.five && jac != nil {
-		l.evalBatch4(x, lx, lc, beta, f, jac)
+		l.evalBatch4(x, lx, sw, lc, beta, f, jac)
 		return
 	}
 	var g [5]float64
@@ -201,31 +201,32 @@ func (l logistic) evalBatch(x, lx, beta, f, jac []float64) {
 			f[i] = l.evalZero(xi, beta, gi)
 		}
 		for j, v := range gi {
-			jac[j*n+i] = v
+			jac[j*n+i] = sw[i] * v
 		}
 	}
 }
 
 // evalBatch4 is evalBatch for the 4PL with its Jacobian (evalU with g = 1
 // written out): the solver's inner loop.
-func (l logistic) evalBatch4(x, lx []float64, lc float64, beta, f, jac []float64) {
+func (l logistic) evalBatch4(x, lx, sw []float64, lc float64, beta, f, jac []float64) {
 	n := len(f)
 	a, b, d := beta[0], beta[1], beta[3]
 	amd, bc := a-d, b/beta[2]
 	ja, jb, jc, jd := jac[:n], jac[n:2*n], jac[2*n:3*n], jac[3*n:4*n]
-	x, lx = x[:n], lx[:n]
+	x, lx, sw = x[:n], lx[:n], sw[:n]
 	var g [4]float64
 	for i, lxi := range lx {
+		s := sw[i]
 		if !(x[i] > 0) {
 			f[i] = l.evalZero(x[i], beta, g[:])
-			ja[i], jb[i], jc[i], jd[i] = g[0], g[1], g[2], g[3]
+			ja[i], jb[i], jc[i], jd[i] = s*g[0], s*g[1], s*g[2], s*g[3]
 			continue
 		}
 		u := lxi - lc
 		h, lg, _ := core4(b * u)
 		f[i] = d + amd*h
-		k := amd * h * lg
-		ja[i], jb[i], jc[i], jd[i] = h, -k*u, k*bc, lg
+		sk := s * amd * h * lg
+		ja[i], jb[i], jc[i], jd[i] = s*h, -sk*u, sk*bc, s*lg
 	}
 }
 

@@ -223,12 +223,13 @@ func bounds(opt NLLSOptions, j int) (lo, hi float64) {
 
 // batchCurve is a Curve that evaluates every reading in one call, given
 // lx[i] = ln x[i] (−Inf at 0, NaN below), which the solver computes once:
-// f[i] = f(x[i]; β) and, when jac is not nil, the gradients column-major:
-// ∂f/∂βⱼ at x[i] in jac[j*n+i]. The logistic models implement it, so that
-// what depends only on β (ln c) is computed once per pass; other curves
-// are evaluated reading by reading through Eval.
+// f[i] = f(x[i]; β) and, when jac is not nil, the gradients column-major,
+// each row weighted: sw[i]·∂f/∂βⱼ at x[i] in jac[j*n+i]. The logistic
+// models implement it, so that what depends only on β (ln c) is computed
+// once per pass; other curves are evaluated reading by reading through
+// Eval.
 type batchCurve interface {
-	evalBatch(x, lx, beta, f, jac []float64)
+	evalBatch(x, lx, sw, beta, f, jac []float64)
 }
 
 // nllsState is the working state of one SolveNLLS call. Every buffer is
@@ -247,9 +248,10 @@ type nllsState struct {
 	r      []float64 // √W·(y − f) at beta
 	rt     []float64 // the same at trial
 	f      []float64 // model values, scratch
-	jfull  []float64 // the Jacobian over all p parameters at beta, column-major (column j at jfull[j*n:])
+	jfull  []float64 // √W·J over all p parameters at beta, column-major (column j at jfull[j*n:])
 	jfullT []float64 // the same at trial (swapped with jfull when a step is taken)
-	jac    []float64 // √W·J over the free parameters, column-major: column l at jac[l*n:]
+	jac    []float64 // √W·J over the free parameters, column-major: column l at jac[l*n:] (see useJacobian)
+	jacBuf []float64 // jac's own storage when some parameter is fixed
 	jacAt  bool      // jac belongs to beta (else jfull does and jac is to be derived)
 	d      []float64 // Moré's column scales
 	ss     float64
@@ -273,7 +275,10 @@ func newNLLSState(c Curve, x, lx, y, w []float64, opt NLLSOptions, k int) *nllsS
 	bc, batch := c.(batchCurve)
 	// One backing array for every float64 buffer (the covariance at the end
 	// reuses big and small).
-	tot := 4*n + 3*p + 2*n*p + n*k + n*(k+1) + k*k + k1*k1 + 3*k1 + 5*k
+	tot := 4*n + 3*p + 2*n*p + n*(k+1) + k*k + k1*k1 + 3*k1 + 5*k
+	if k < p {
+		tot += n * k
+	}
 	if batch && lx == nil {
 		tot += n
 	}
@@ -302,7 +307,10 @@ func newNLLSState(c Curve, x, lx, y, w []float64, opt NLLSOptions, k int) *nllsS
 		}
 	}
 	s.sw, s.beta, s.trial, s.grad = take(n), take(p), take(p), take(p)
-	s.r, s.rt, s.f, s.jfull, s.jfullT, s.jac = take(n), take(n), take(n), take(n*p), take(n*p), take(n*k)
+	s.r, s.rt, s.f, s.jfull, s.jfullT = take(n), take(n), take(n), take(n*p), take(n*p)
+	if k < p {
+		s.jacBuf = take(n * k)
+	}
 	s.d, s.big, s.rk, s.qtr = take(k), take(n*(k+1)), take(k*k), take(k)
 	s.small, s.z, s.wa, s.sdiag, s.g, s.delta = take(k1*k1), take(k1), take(k1), take(k1), take(k), take(k)
 	s.cn = take(k)
@@ -329,10 +337,10 @@ func newNLLSState(c Curve, x, lx, y, w []float64, opt NLLSOptions, k int) *nllsS
 }
 
 // eval sets s.f to the model at beta and jf (n×p column-major) to its
-// Jacobian.
+// weighted Jacobian √W·J.
 func (s *nllsState) eval(beta, jf []float64) {
 	if s.bc != nil {
-		s.bc.evalBatch(s.x, s.lx, beta, s.f, jf)
+		s.bc.evalBatch(s.x, s.lx, s.sw, beta, s.f, jf)
 		return
 	}
 	n, p := len(s.x), len(beta)
@@ -340,7 +348,7 @@ func (s *nllsState) eval(beta, jf []float64) {
 	for i, xi := range s.x {
 		s.f[i] = s.c.Eval(xi, beta, g)
 		for j := 0; j < p; j++ {
-			jf[j*n+i] = g[j]
+			jf[j*n+i] = s.sw[i] * g[j]
 		}
 	}
 }
@@ -366,27 +374,29 @@ func (s *nllsState) residuals(beta, r, jf []float64) float64 {
 	return ss
 }
 
-// useJacobian derives the weighted Jacobian over the free parameters from
-// s.jfull (which belongs to beta, as do r and ss), its column norms, the
-// gradient Jᵀ·W·r, and updates the column scales; it reports whether
-// everything is finite.
+// useJacobian takes the weighted Jacobian over the free parameters from
+// s.jfull (which belongs to beta, as do r and ss: s.jac is s.jfull itself
+// when every parameter is free, else a copy of its free columns), its
+// column norms and the gradient Jᵀ·W·r, and updates the column scales; it
+// reports whether everything is finite.
 func (s *nllsState) useJacobian() bool {
-	n := len(s.x)
-	sw, r := s.sw[:n], s.r[:n]
+	n, k := len(s.x), len(s.free)
+	r := s.r[:n]
 	s.jacAt = true
 	if !Finite(s.ss) {
 		return false
 	}
-	for l, j := range s.free {
-		src, dst := s.jfull[j*n:j*n+n], s.jac[l*n:l*n+n]
-		src = src[:len(dst)]
-		var nn, gl float64
-		for i, v := range sw {
-			a := v * src[i]
-			dst[i] = a
-			nn += a * a
-			gl += a * r[i]
+	if s.jacBuf == nil {
+		s.jac = s.jfull[:n*k]
+	} else {
+		s.jac = s.jacBuf
+		for l, j := range s.free {
+			copy(s.jac[l*n:l*n+n], s.jfull[j*n:j*n+n])
 		}
+	}
+	for l := range s.free {
+		col := s.jac[l*n : l*n+n]
+		nn, gl := floats.Dot(col, col), floats.Dot(col, r)
 		if !Finite(nn) {
 			return false
 		}
