@@ -477,7 +477,6 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 		ZeroHandling: "responses near zero are weighted as the smallest non-zero |fitted response| (response_floor)",
 		Limits:       Limits{Detail: "not computed: the ICH Q2 slope formulas assume a straight line; the precision profile's working range takes their place for non-linear curves"},
 	}
-	setLevelFits(levels, fit)
 	var judged []*curveLevel
 	for _, l := range levels {
 		if !l.anchor && l.x > 0 {
@@ -521,8 +520,13 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 		}
 	}
 	if ok {
+		// A level's fitted response is that of its readings (the same x).
+		for _, l := range levels {
+			l.meanYHat = r.Points[pidx[l.idx[0]]].Fitted
+		}
 		cd.ResponseFloor = floorOf(len(pidx), func(k int) float64 { return r.Points[pidx[k]].Fitted })
 	} else {
+		setLevelFits(levels, fit)
 		cd.ResponseFloor = responseFloor(x, fit)
 	}
 	for k, i := range pidx {
