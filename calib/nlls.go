@@ -113,9 +113,10 @@ type NLLSResult struct {
 //
 //	min ‖ [√W·J·D⁻¹; √λ·I]·z + [−√W·r; 0] ‖,  δ = D⁻¹z,
 //
-// by Householder QR (householderQR, allocation-free): one factorisation of √W·J·D⁻¹ per
-// iteration, then Givens rotations of √λ·D into its R per trial λ (MINPACK's
-// qrsolv), where r is the
+// (in parameter units, min ‖[R; √λ·D]·δ − [Qᵀ·√W·r; 0]‖) by one Householder
+// QR factorisation of [√W·J | √W·r] per iteration (householderQR,
+// allocation-free), then Givens rotations of √λ·D into its R per trial λ
+// (MINPACK's qrsolv), where r is the
 // residual vector, J the analytic Jacobian over the free parameters and
 // D = diag(dⱼ), dⱼ the largest ‖√W·Jⱼ‖ seen so far (so the damping is
 // invariant to rescaling the parameters). λ starts at 1e-3 and follows
