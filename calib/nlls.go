@@ -2,6 +2,7 @@ package calib
 
 import (
 	"math"
+	"sync"
 
 	"gonum.org/v1/gonum/floats"
 )
@@ -153,12 +154,35 @@ func solveNLLS(c Curve, x, lx, y, w []float64, opt NLLSOptions) (NLLSResult, err
 		return NLLSResult{}, inputErr("points", "%d readings for %d free parameters", n, k)
 	}
 	s := newNLLSState(c, x, lx, y, w, opt, k)
+	defer s.release()
 	s.ss = s.residuals(s.beta, s.r, s.jfull)
 	if !s.useJacobian() {
 		return NLLSResult{}, inputErr("start", "the model or its Jacobian is not finite at the starting parameters")
 	}
 	res := s.iterate()
 	return s.finish(res), nil
+}
+
+// nllsScratch is the memory of one solve: the state, its free list and
+// flags, and one backing array for every float64 buffer. A finished solve
+// returns it to nllsPool (its results never point into it), so that a
+// fit allocates little more than what it returns.
+type nllsScratch struct {
+	s    nllsState
+	free [8]int
+	act  [8]bool
+	buf  []float64
+}
+
+var nllsPool = sync.Pool{New: func() any { return new(nllsScratch) }}
+
+// release returns the state's memory to nllsPool, dropping its references
+// to the caller's data.
+func (s *nllsState) release() {
+	sc := s.scratch
+	buf := sc.buf
+	*sc = nllsScratch{buf: buf}
+	nllsPool.Put(sc)
 }
 
 // checkNLLSInput validates the data and options and fills the defaults.
@@ -234,40 +258,42 @@ type batchCurve interface {
 }
 
 // nllsState is the working state of one SolveNLLS call. Every buffer is
-// allocated once, in newNLLSState; an iteration allocates nothing.
+// taken once, in newNLLSState (from nllsPool); an iteration allocates
+// nothing.
 type nllsState struct {
-	c      Curve
-	bc     batchCurve // c as a batchCurve, or nil
-	x, y   []float64
-	lx     []float64 // ln xᵢ (with bc)
-	sw     []float64 // √wᵢ
-	opt    NLLSOptions
-	free   []int
-	beta   []float64 // current parameters (all p)
-	trial  []float64
-	grad   []float64 // scratch gradient of a Curve without evalBatch
-	r      []float64 // √W·(y − f) at beta
-	rt     []float64 // the same at trial
-	f      []float64 // model values, scratch
-	jfull  []float64 // √W·J over all p parameters at beta, column-major (column j at jfull[j*n:])
-	jfullT []float64 // the same at trial (swapped with jfull when a step is taken)
-	jac    []float64 // √W·J over the free parameters, column-major: column l at jac[l*n:] (see useJacobian)
-	jacBuf []float64 // jac's own storage when some parameter is fixed
-	jacAt  bool      // jac belongs to beta (else jfull does and jac is to be derived)
-	d      []float64 // Moré's column scales
-	ss     float64
-	ynorm  float64   // ‖√W·y‖
-	big    []float64 // [√W·J·D⁻¹ | √W·r], n×(k+1) column-major, factorised once per iteration
-	rk     []float64 // leading k×k block of R (of √W·J, unscaled), row-major
-	qtr    []float64 // first k entries of Qᵀ·√W·r
-	small  []float64 // R of [R; √λ·I] (k×k row-major), built by step
-	z      []float64 // scratch of the covariance
-	wa     []float64 // Qᵀ·√W·r rotated along with small
-	sdiag  []float64 // the row of √λ·I being rotated in
-	g      []float64 // Jᵀ·W·r over the free parameters
-	cn     []float64 // ‖√W·Jⱼ‖² over the free parameters
-	delta  []float64 // trial step
-	active []bool    // free parameter held at a bound this iteration
+	scratch *nllsScratch // the memory s lives in
+	c       Curve
+	bc      batchCurve // c as a batchCurve, or nil
+	x, y    []float64
+	lx      []float64 // ln xᵢ (with bc)
+	sw      []float64 // √wᵢ
+	opt     NLLSOptions
+	free    []int
+	beta    []float64 // current parameters (all p)
+	trial   []float64
+	grad    []float64 // scratch gradient of a Curve without evalBatch
+	r       []float64 // √W·(y − f) at beta
+	rt      []float64 // the same at trial
+	f       []float64 // model values, scratch
+	jfull   []float64 // √W·J over all p parameters at beta, column-major (column j at jfull[j*n:])
+	jfullT  []float64 // the same at trial (swapped with jfull when a step is taken)
+	jac     []float64 // √W·J over the free parameters, column-major: column l at jac[l*n:] (see useJacobian)
+	jacBuf  []float64 // jac's own storage when some parameter is fixed
+	jacAt   bool      // jac belongs to beta (else jfull does and jac is to be derived)
+	d       []float64 // Moré's column scales
+	ss      float64
+	ynorm   float64   // ‖√W·y‖
+	big     []float64 // [√W·J·D⁻¹ | √W·r], n×(k+1) column-major, factorised once per iteration
+	rk      []float64 // leading k×k block of R (of √W·J, unscaled), row-major
+	qtr     []float64 // first k entries of Qᵀ·√W·r
+	small   []float64 // R of [R; √λ·I] (k×k row-major), built by step
+	z       []float64 // scratch of the covariance
+	wa      []float64 // Qᵀ·√W·r rotated along with small
+	sdiag   []float64 // the row of √λ·I being rotated in
+	g       []float64 // Jᵀ·W·r over the free parameters
+	cn      []float64 // ‖√W·Jⱼ‖² over the free parameters
+	delta   []float64 // trial step
+	active  []bool    // free parameter held at a bound this iteration
 }
 
 func newNLLSState(c Curve, x, lx, y, w []float64, opt NLLSOptions, k int) *nllsState {
@@ -283,19 +309,19 @@ func newNLLSState(c Curve, x, lx, y, w []float64, opt NLLSOptions, k int) *nllsS
 	if batch && lx == nil {
 		tot += n
 	}
-	buf := make([]float64, tot)
+	st := nllsPool.Get().(*nllsScratch)
+	if cap(st.buf) < tot {
+		st.buf = make([]float64, tot)
+	}
+	buf := st.buf[:tot]
+	clear(buf)
 	take := func(m int) []float64 {
 		v := buf[:m:m]
 		buf = buf[m:]
 		return v
 	}
-	type state struct { // the state, its free list and flags in one allocation
-		s    nllsState
-		free [8]int
-		act  [8]bool
-	}
-	st := &state{}
 	s := &st.s
+	s.scratch = st
 	s.c, s.x, s.y, s.opt = c, x, y, opt
 	if p <= len(st.free) {
 		s.free, s.active = st.free[:0:p], st.act[:k:k]
