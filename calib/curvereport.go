@@ -321,25 +321,31 @@ func resolveCurveOptions(opt Options) (Options, error) {
 func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
 	// A calibration has few levels: a linear search finds each reading's.
 	// One backing array holds the levels and one their reading indices.
-	store := make([]curveLevel, 0, len(pidx))
 	ints := make([]int, 3*len(pidx))
-	of := ints[:len(pidx)] // level of each reading
+	of, first := ints[:len(pidx)], ints[len(pidx):2*len(pidx)] // level of each reading; first reading of each level
+	nl := 0
 	for k, i := range pidx {
-		p := points[i]
+		x := points[i].X
 		li := -1
-		for j := range store {
-			if store[j].x == p.X {
+		for j := range nl {
+			if points[pidx[first[j]]].X == x {
 				li = j
 				break
 			}
 		}
 		if li < 0 {
-			li = len(store)
-			store = append(store, curveLevel{label: p.Level, x: p.X, anchor: isAnchor(p.Level)})
+			li, first[nl] = nl, k
+			nl++
 		}
 		of[k] = li
 	}
-	count := ints[len(pidx) : len(pidx)+len(store)]
+	store := make([]curveLevel, nl)
+	for j := range store {
+		p := points[pidx[first[j]]]
+		store[j] = curveLevel{label: p.Level, x: p.X, anchor: isAnchor(p.Level)}
+	}
+	count := first[:nl]
+	clear(count)
 	for _, li := range of {
 		count[li]++
 	}
