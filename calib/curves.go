@@ -223,7 +223,15 @@ func (l logistic) evalBatch4(x, lx, sw []float64, lc float64, beta, f, jac []flo
 			continue
 		}
 		u := lxi - lc
-		h, lg, _ := core4(b * u)
+		// core4(b·u) written out: Go does not inline it, and this is the
+		// solver's innermost loop.
+		t := b * u
+		e := math.Exp(-math.Abs(t))
+		h := 1 / (1 + e)
+		lg := e * h
+		if t > 0 {
+			h, lg = lg, h
+		}
 		f[i] = d + amd*h
 		sk := s * amd * h * lg
 		ja[i], jb[i], jc[i], jd[i] = s*h, -sk*u, sk*bc, s*lg
