@@ -319,7 +319,8 @@ func resolveCurveOptions(opt Options) (Options, error) {
 // groupCurveLevels groups the fitted readings (pidx into points) by
 // concentration, in increasing concentration.
 func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
-	// A calibration has few levels: a linear search finds each reading's.
+	// A calibration has few levels: a linear search finds each reading's,
+	// from the last level found (replicates usually follow each other).
 	// One backing array holds the levels and one their reading indices.
 	ints := make([]int, 3*len(pidx))
 	of, first := ints[:len(pidx)], ints[len(pidx):2*len(pidx)] // level of each reading; first reading of each level
@@ -327,7 +328,7 @@ func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
 	for k, i := range pidx {
 		x := points[i].X
 		li := -1
-		for j := range nl {
+		for j := nl - 1; j >= 0; j-- {
 			if points[pidx[first[j]]].X == x {
 				li = j
 				break
