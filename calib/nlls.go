@@ -789,8 +789,8 @@ func (s *nllsState) finish(res NLLSResult) NLLSResult {
 func (s *nllsState) covariance(sd float64, cov []float64) bool {
 	n, k := len(s.x), len(s.free)
 	a, sc := s.big[:n*k], s.z[:k]
-	var riBuf [25]float64
-	ri := riBuf[:0]
+	var riBuf [25]float64 // R⁻¹, on the stack for up to 5 free parameters
+	var ri []float64
 	if k*k <= len(riBuf) {
 		ri = riBuf[:k*k]
 	} else {
