@@ -490,7 +490,8 @@ func (s *nllsState) iterate() NLLSResult {
 			if ratio > 0 {
 				sn, bn := s.scaledNorms(delta)
 				s.accept()
-				lambda *= max(1.0/3, 1-math.Pow(2*ratio-1, 3))
+				t := 2*ratio - 1
+				lambda *= max(1.0/3, 1-t*t*t)
 				lambda = max(lambda, 1e-300)
 				nu = 2
 				if sn <= opt.XTol*bn {
@@ -539,13 +540,8 @@ func (s *nllsState) factor() {
 	copy(a[k*n:k*n+n], s.r)
 	householderQR(a, n, k+1, k)
 	for j := 0; j < k; j++ {
-		row := s.rk[j*k : j*k+k]
-		for l := range row {
-			v := 0.0
-			if l >= j {
-				v = a[l*n+j]
-			}
-			row[l] = v
+		for l := j; l < k; l++ {
+			s.rk[j*k+l] = a[l*n+j] // the upper triangle: the lower one is never read
 		}
 		s.qtr[j] = a[k*n+j]
 	}
@@ -696,13 +692,14 @@ func (s *nllsState) step(lambda float64, delta []float64) bool {
 // parameters have δ = 0 and a zeroed column).
 func (s *nllsState) predicted(delta []float64) float64 {
 	k := len(s.free)
+	rk, g := s.rk[:k*k], s.g[:k]
+	delta = delta[:k]
 	var gd, jd2 float64
-	for j := 0; j < k; j++ {
-		gd += s.g[j] * delta[j]
-		row := s.rk[j*k : j*k+k]
+	for j, gj := range g {
+		gd += gj * delta[j]
 		var v float64
 		for l := j; l < k; l++ {
-			v += row[l] * delta[l]
+			v += rk[j*k+l] * delta[l]
 		}
 		jd2 += v * v
 	}
