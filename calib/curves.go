@@ -212,11 +212,12 @@ func (l logistic) evalBatch4(x, lx, sw []float64, lc float64, beta, f, jac []flo
 	n := len(f)
 	a, b, d := beta[0], beta[1], beta[3]
 	amd, bc := a-d, b/beta[2]
-	ja, jb, jc, jd := jac[:n], jac[n:2*n], jac[2*n:3*n], jac[3*n:4*n]
+	// Every slice of length n, so that the loop checks no bounds.
+	ja, jb, jc, jd := jac[:n], jac[n:][:n], jac[2*n:][:n], jac[3*n:][:n]
 	x, lx, sw = x[:n], lx[:n], sw[:n]
 	var g [4]float64
-	for i, lxi := range lx {
-		s := sw[i]
+	for i := range n {
+		s, lxi := sw[i], lx[i]
 		if !(x[i] > 0) {
 			f[i] = l.evalZero(x[i], beta, g[:])
 			ja[i], jb[i], jc[i], jd[i] = s*g[0], s*g[1], s*g[2], s*g[3]
