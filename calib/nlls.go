@@ -481,7 +481,7 @@ func (s *nllsState) iterate() NLLSResult {
 				}
 				if math.Abs(act) <= opt.FTol*s.ss && pred <= opt.FTol*s.ss && ratio <= 2 {
 					if act > 0 {
-						s.accept()
+						s.accept(ssNew)
 					}
 					res.Outcome, res.Criterion = Converged, "relative reduction in SS"
 					return res
@@ -489,7 +489,7 @@ func (s *nllsState) iterate() NLLSResult {
 			}
 			if ratio > 0 {
 				sn, bn := s.scaledNorms(delta)
-				s.accept()
+				s.accept(ssNew)
 				t := 2*ratio - 1
 				lambda *= max(1.0/3, 1-t*t*t)
 				lambda = max(lambda, 1e-300)
@@ -564,17 +564,16 @@ func householderQR(a []float64, n, m, kc int) {
 		beta := -math.Copysign(nrm, alpha)
 		tau := (beta - alpha) / beta
 		inv := 1 / (alpha - beta)
+		// The reflector is I − τ·u·uᵀ, u = [1; inv·v]: v is left unscaled
+		// and inv applied to the products.
 		v := col[j+1:]
-		for i := range v {
-			v[i] *= inv
-		}
 		col[j] = beta
 		for l := j + 1; l < m; l++ {
 			cl := a[l*n : l*n+n]
 			cr := cl[j+1:]
-			w := tau * (cl[j] + floats.Dot(v, cr))
+			w := tau * (cl[j] + inv*floats.Dot(v, cr))
 			cl[j] -= w
-			floats.AddScaled(cr, -w, v)
+			floats.AddScaled(cr, -w*inv, v)
 		}
 	}
 }
@@ -717,16 +716,13 @@ func (s *nllsState) scaledNorms(delta []float64) (float64, float64) {
 }
 
 // accept makes the trial parameters current, with the Jacobian evaluated
-// there.
-func (s *nllsState) accept() {
+// there and their sum of squares ss.
+func (s *nllsState) accept(ss float64) {
 	s.jacAt = false
 	s.jfull, s.jfullT = s.jfullT, s.jfull
 	copy(s.beta, s.trial)
 	copy(s.r, s.rt)
-	s.ss = 0
-	for _, v := range s.r {
-		s.ss += v * v
-	}
+	s.ss = ss // Σ rtᵢ², as residuals summed it
 }
 
 // finish fills the result at the final parameters: SS, s, df, residuals,
