@@ -217,8 +217,8 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 	if err != nil {
 		return nil, err
 	}
-	xy := make([]float64, 0, 2*len(points))
-	x, y := xy[0:0:len(points)], xy[len(points):len(points)]
+	xyw := make([]float64, 3*len(points)) // x, y and the weights of the fitted readings
+	x, y := xyw[0:0:len(points)], xyw[len(points):len(points):2*len(points)]
 	pidx := make([]int, 0, len(points))
 	for i, p := range points {
 		if !Finite(p.X, p.Y) {
@@ -242,7 +242,7 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 			cd.Anchors = append(cd.Anchors, l.label)
 		}
 	}
-	w := make([]float64, len(x))
+	w := xyw[2*len(points) : 2*len(points)+len(x)]
 	var fit *CurveFit
 	co := CurveOptions{Model: opt.Model}
 	co.Start, co.Fixed = opt.Curve.arrays(opt.Model)
@@ -579,7 +579,7 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 	defer t.free()
 	mc := minLevelsCheck(xs, opt.Policy, t)
 	mc.Detail, mc.Mandatory = t.str(), opt.Policy.mandatory(CheckMinLevels)
-	r.Checks = append(r.Checks, convergenceCheck(fit), mc)
+	r.Checks = append(make([]Check, 0, 6), convergenceCheck(fit), mc)
 	if ok {
 		cd.Replicates = medianReplicates(judged)
 		r.profile(judged, cd)

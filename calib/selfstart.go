@@ -131,8 +131,8 @@ func startLogistic(x, lnx, y []float64, e [4]float64, fixed func(int) (float64, 
 	if v, ok := fixed(3); ok {
 		d = v
 	}
-	buf := make([]float64, 0, 3*len(x))
-	all, lx, z := buf[0:0:len(x)], buf[len(x):len(x):2*len(x)], buf[2*len(x):2*len(x)]
+	buf := make([]float64, 3*len(x)+4) // scratch, and the start at its end
+	all, lx, z := buf[0:0:len(x)], buf[len(x):len(x):2*len(x)], buf[2*len(x):2*len(x):3*len(x)]
 	for i := range x {
 		if x[i] > 0 {
 			l := lnx[i]
@@ -154,7 +154,9 @@ func startLogistic(x, lnx, y []float64, e [4]float64, fixed func(int) (float64, 
 		}
 		b, c = 1, math.Exp(m/float64(len(all)))
 	}
-	return []float64{a, b, c, d}
+	s := buf[3*len(x):]
+	s[0], s[1], s[2], s[3] = a, b, c, d
+	return s
 }
 
 func startPower(x, y []float64) []float64 {
