@@ -216,22 +216,30 @@ func (l logistic) evalBatch4(x, lx, sw []float64, lc float64, beta, f, jac []flo
 	ja, jb, jc, jd := jac[:n], jac[n:][:n], jac[2*n:][:n], jac[3*n:][:n]
 	x, lx, sw = x[:n], lx[:n], sw[:n]
 	var g [4]float64
+	// A reading at the same concentration as the one before it (a
+	// replicate) shares its logistic: h, L and u are computed once per run
+	// of equal x.
+	px := math.NaN()
+	var u, h, lg float64
 	for i := range n {
-		s, lxi := sw[i], lx[i]
+		s := sw[i]
 		if !(x[i] > 0) {
 			f[i] = l.evalZero(x[i], beta, g[:])
 			ja[i], jb[i], jc[i], jd[i] = s*g[0], s*g[1], s*g[2], s*g[3]
+			px = math.NaN()
 			continue
 		}
-		u := lxi - lc
-		// core4(b·u) written out: Go does not inline it, and this is the
-		// solver's innermost loop.
-		t := b * u
-		e := math.Exp(-math.Abs(t))
-		h := 1 / (1 + e)
-		lg := e * h
-		if t > 0 {
-			h, lg = lg, h
+		if x[i] != px {
+			px, u = x[i], lx[i]-lc
+			// core4(b·u) written out: Go does not inline it, and this
+			// is the solver's innermost loop.
+			t := b * u
+			e := math.Exp(-math.Abs(t))
+			h = 1 / (1 + e)
+			lg = e * h
+			if t > 0 {
+				h, lg = lg, h
+			}
 		}
 		f[i] = d + amd*h
 		sk := s * amd * h * lg
