@@ -516,7 +516,15 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 			if withLev {
 				g = grads[i*np : i*np+np]
 			}
-			pr.Fitted = c.Eval(p.X, fit.Coefficients, g)
+			if i > 0 && p.X == points[i-1].X {
+				// A replicate of the reading before: the same curve.
+				pr.Fitted = r.Points[i-1].Fitted
+				if withLev {
+					copy(g, grads[(i-1)*np:i*np])
+				}
+			} else {
+				pr.Fitted = c.Eval(p.X, fit.Coefficients, g)
+			}
 			pr.Residual = p.Y - pr.Fitted
 			if xb, _, inv := c.invert(p.Y, fit.Coefficients); inv && Finite(xb) {
 				pr.BackCalculated, pr.HasBackCalc = xb, true

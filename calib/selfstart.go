@@ -231,10 +231,13 @@ func refineAsymptotes(x, lx, y, w, s []float64, fixed func(int) (float64, bool))
 	}
 	b, lc := s[1], math.Log(s[2])
 	var shh, sho, soo, shy, soy float64
+	h, px := 1.0, math.NaN() // h at px, kept for the replicates that follow
 	for i, xi := range x {
-		h := 1.0
-		if xi > 0 {
-			h = 1 / (1 + math.Exp(b*(lx[i]-lc)))
+		if xi != px {
+			px, h = xi, 1.0
+			if xi > 0 {
+				h = 1 / (1 + math.Exp(b*(lx[i]-lc)))
+			}
 		}
 		wi := 1.0
 		if w != nil {
