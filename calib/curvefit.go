@@ -86,7 +86,13 @@ func FitCurve(x, y, w []float64, opt CurveOptions) (*CurveFit, error) {
 		}
 	}
 	n := len(x)
-	wn := make([]float64, n)
+	wl := make([]float64, 2*n)
+	// wn: the weights on the Σw = n scale; lx: ln x (−Inf at 0), shared by
+	// the self-start and the solver.
+	wn, lx := wl[:n:n], wl[n:]
+	for i, v := range x {
+		lx[i] = math.Log(v)
+	}
 	var sw float64
 	for i := range wn {
 		wn[i] = 1
@@ -107,7 +113,7 @@ func FitCurve(x, y, w []float64, opt CurveOptions) (*CurveFit, error) {
 	for j := range opt.Fixed {
 		fixed[j] = !math.IsNaN(opt.Fixed[j])
 	}
-	start, err := selfStart(opt.Model, x, y, wn, opt, lower, upper)
+	start, err := selfStart(opt.Model, x, lx, y, wn, opt, lower, upper)
 	if err != nil {
 		return nil, err
 	}
@@ -122,7 +128,7 @@ func FitCurve(x, y, w []float64, opt CurveOptions) (*CurveFit, error) {
 			return nil, inputErr("options.start", "coefficient %d: %v lies outside its bounds [%v, %v]", j, start[j], lower[j], upper[j])
 		}
 	}
-	res, err := SolveNLLS(c, x, y, wn, NLLSOptions{Start: start, Fixed: fixed, Lower: lower, Upper: upper, MaxIter: opt.MaxIter})
+	res, err := solveNLLS(c, x, lx, y, wn, NLLSOptions{Start: start, Fixed: fixed, Lower: lower, Upper: upper, MaxIter: opt.MaxIter})
 	if err != nil {
 		return nil, err
 	}
@@ -148,7 +154,7 @@ func checkCurveData(x, y, w []float64) error {
 	if len(y) != len(x) || (w != nil && len(w) != len(x)) {
 		return inputErr("points", "x, y and weights differ in length")
 	}
-	var pos []float64
+	pos, distinct := math.NaN(), false // a positive concentration; a second one seen
 	for i := range x {
 		if !Finite(x[i], y[i]) {
 			return inputErr("points", "reading %d is not finite", i)
@@ -159,11 +165,14 @@ func checkCurveData(x, y, w []float64) error {
 		if w != nil && !(w[i] > 0 && !math.IsInf(w[i], 0)) {
 			return inputErr("weights", "weight %d is not positive and finite", i)
 		}
-		if x[i] > 0 && !slices.Contains(pos, x[i]) {
-			pos = append(pos, x[i])
+		if x[i] > 0 {
+			if math.IsNaN(pos) {
+				pos = x[i]
+			}
+			distinct = distinct || x[i] != pos
 		}
 	}
-	if len(pos) < 2 {
+	if !distinct {
 		return inputErr("points", "at least two distinct positive concentrations are needed")
 	}
 	if slices.Min(y) == slices.Max(y) {
@@ -190,7 +199,8 @@ func curveBounds(m Model, x []float64) (lower, upper []float64) {
 		xmax = max(xmax, v)
 	}
 	p := curveOf(m).NumParams()
-	lower, upper = make([]float64, p), make([]float64, p)
+	lu := make([]float64, 2*p)
+	lower, upper = lu[:p:p], lu[p:]
 	for j := range lower {
 		lower[j], upper[j] = math.Inf(-1), math.Inf(1)
 	}

@@ -34,23 +34,27 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 	}
 	pr.Flags = r.Range.appendFlags(pr.Flags, x0)
 	pr.Concentration = x0 * pr.Dilution
-	grad := make([]float64, len(beta))
-	_, v := r.unknownVar(c, x0, m, grad)
-	se := math.Sqrt(v) / math.Abs(c.slope(x0, beta))
+	cv := r.newCurveVar(c, m)
+	f0, v0, sl := cv.at(x0)
+	se := math.Sqrt(v0) / math.Abs(sl)
 	if Finite(se) {
 		pr.StandardError = se * pr.Dilution
 	}
 	t := studentT(1-(1-confidence)/2, r.DF)
-	// gap(x) ≥ 0 ⇔ ȳ0 lies inside the band at x (−Inf where the band is
-	// not finite).
-	gap := func(x float64) float64 {
-		fx, v := r.unknownVar(c, x, m, grad)
+	// gapOf(f(x), variance) ≥ 0 ⇔ ȳ0 lies inside the band at x (−Inf
+	// where the band is not finite).
+	gapOf := func(fx, v float64) float64 {
 		if !Finite(fx, v) {
 			return math.Inf(-1)
 		}
 		return t*math.Sqrt(v) - math.Abs(fx-y0)
 	}
-	if !(gap(x0) >= 0) {
+	gap := func(x float64) float64 {
+		fx, v, _ := cv.at(x)
+		return gapOf(fx, v)
+	}
+	g0 := gapOf(f0, v0)
+	if !(g0 >= 0) {
 		// Rounding at an extreme x̂0: no band to invert.
 		pr.Flags = append(pr.Flags, FlagUnbounded)
 		return nil
@@ -61,8 +65,8 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 	if rel := t * se / x0; Finite(rel) {
 		step = 1 + min(max(0.5*rel, 0.02), 1)
 	}
-	lo := r.bandEdge(gap, x0, -1, step)
-	hi := r.bandEdge(gap, x0, +1, step)
+	lo := r.bandEdge(gap, x0, g0, -1, step)
+	hi := r.bandEdge(gap, x0, g0, +1, step)
 	pr.Interval.Low = lo * pr.Dilution
 	if math.IsInf(hi, 1) {
 		pr.Interval.HighOpen = true
@@ -74,14 +78,15 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 	return nil
 }
 
-// bandEdge walks from x0 (inside the band, gap ≥ 0) in direction dir (−1
+// bandEdge walks from x0 (inside the band, gap g0 ≥ 0) in direction dir (−1
 // down, +1 up) by factors of step and returns the last x inside, refined
 // in log x to 1e-13 relative by regula falsi with the Illinois
 // modification (which converges superlinearly on the smooth gap and moves
 // both ends), bisecting when an interpolated point is not finite or not
-// inside the bracket; +Inf going up and 0 going down when the band never
+// inside the bracket and stepping inside by edgeStep from an end it
+// would land next to; +Inf going up and 0 going down when the band never
 // closes.
-func (r *Report) bandEdge(gap func(float64) float64, x0 float64, dir int, step float64) float64 {
+func (r *Report) bandEdge(gap func(float64) float64, x0, g0 float64, dir int, step float64) float64 {
 	lim := r.Range.High * 1e6
 	if dir < 0 {
 		lim = r.Range.Low * 1e-6
@@ -90,7 +95,7 @@ func (r *Report) bandEdge(gap func(float64) float64, x0 float64, dir int, step f
 		}
 	}
 	in, x := x0, x0
-	gin := gap(x0)
+	gin := g0
 	var gout float64
 	f := math.Pow(step, float64(dir))
 	for range 4000 {
@@ -145,6 +150,19 @@ func (r *Report) bandEdge(gap func(float64) float64, x0 float64, dir int, step f
 			if u := ui + (uo-ui)*gin/(gin-gout); u > min(ui, uo) && u < max(ui, uo) {
 				um = u
 			}
+			// A point within edgeStep of an end moves inside by edgeStep
+			// (Brent's safeguard): once an end lies next to the crossing,
+			// whose gap is then at rounding level, the next evaluation
+			// closes the bracket to the tolerance instead of the
+			// interpolation landing on that end and bisection taking over.
+			if math.Abs(uo-ui) > 2*edgeStep {
+				switch {
+				case math.Abs(um-uo) < edgeStep:
+					um = uo + math.Copysign(edgeStep, ui-uo)
+				case math.Abs(um-ui) < edgeStep:
+					um = ui + math.Copysign(edgeStep, uo-ui)
+				}
+			}
 		}
 		xm := math.Exp(um)
 		if !(xm > min(in, out) && xm < max(in, out)) {
@@ -171,6 +189,10 @@ func (r *Report) bandEdge(gap func(float64) float64, x0 float64, dir int, step f
 	}
 	return in
 }
+
+// edgeStep is the safeguard step of bandEdge in ln x: 0.4 of its
+// tolerance of 1e-13 relative.
+const edgeStep = 0.4e-13
 
 // curveMeanBand is MeanBand for a non-linear model: t·√(∇βfᵀ·Cov·∇βf),
 // the delta-method band of the fitted curve.

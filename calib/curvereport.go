@@ -217,8 +217,8 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 	if err != nil {
 		return nil, err
 	}
-	xy := make([]float64, 0, 2*len(points))
-	x, y := xy[0:0:len(points)], xy[len(points):len(points)]
+	xyw := make([]float64, 3*len(points)) // x, y and the weights of the fitted readings
+	x, y := xyw[0:0:len(points)], xyw[len(points):len(points):2*len(points)]
 	pidx := make([]int, 0, len(points))
 	for i, p := range points {
 		if !Finite(p.X, p.Y) {
@@ -242,7 +242,7 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 			cd.Anchors = append(cd.Anchors, l.label)
 		}
 	}
-	w := make([]float64, len(x))
+	w := xyw[2*len(points) : 2*len(points)+len(x)]
 	var fit *CurveFit
 	co := CurveOptions{Model: opt.Model}
 	co.Start, co.Fixed = opt.Curve.arrays(opt.Model)
@@ -319,30 +319,38 @@ func resolveCurveOptions(opt Options) (Options, error) {
 // groupCurveLevels groups the fitted readings (pidx into points) by
 // concentration, in increasing concentration.
 func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
-	// A calibration has few levels: a linear search finds each reading's.
+	// A calibration has few levels: a linear search finds each reading's,
+	// from the last level found (replicates usually follow each other).
 	// One backing array holds the levels and one their reading indices.
-	store := make([]curveLevel, 0, len(pidx))
-	of := make([]int, len(pidx)) // level of each reading
+	ints := make([]int, 3*len(pidx))
+	of, first := ints[:len(pidx)], ints[len(pidx):2*len(pidx)] // level of each reading; first reading of each level
+	nl := 0
 	for k, i := range pidx {
-		p := points[i]
+		x := points[i].X
 		li := -1
-		for j := range store {
-			if store[j].x == p.X {
+		for j := nl - 1; j >= 0; j-- {
+			if points[pidx[first[j]]].X == x {
 				li = j
 				break
 			}
 		}
 		if li < 0 {
-			li = len(store)
-			store = append(store, curveLevel{label: p.Level, x: p.X, anchor: isAnchor(p.Level)})
+			li, first[nl] = nl, k
+			nl++
 		}
 		of[k] = li
 	}
-	count := make([]int, len(store))
+	store := make([]curveLevel, nl)
+	for j := range store {
+		p := points[pidx[first[j]]]
+		store[j] = curveLevel{label: p.Level, x: p.X, anchor: isAnchor(p.Level)}
+	}
+	count := first[:nl]
+	clear(count)
 	for _, li := range of {
 		count[li]++
 	}
-	idx := make([]int, len(pidx))
+	idx := ints[2*len(pidx):]
 	out := make([]*curveLevel, len(store))
 	at := 0
 	for j := range store {
@@ -476,7 +484,6 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 		ZeroHandling: "responses near zero are weighted as the smallest non-zero |fitted response| (response_floor)",
 		Limits:       Limits{Detail: "not computed: the ICH Q2 slope formulas assume a straight line; the precision profile's working range takes their place for non-linear curves"},
 	}
-	setLevelFits(levels, fit)
 	var judged []*curveLevel
 	for _, l := range levels {
 		if !l.anchor && l.x > 0 {
@@ -509,7 +516,15 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 			if withLev {
 				g = grads[i*np : i*np+np]
 			}
-			pr.Fitted = c.Eval(p.X, fit.Coefficients, g)
+			if i > 0 && p.X == points[i-1].X {
+				// A replicate of the reading before: the same curve.
+				pr.Fitted = r.Points[i-1].Fitted
+				if withLev {
+					copy(g, grads[(i-1)*np:i*np])
+				}
+			} else {
+				pr.Fitted = c.Eval(p.X, fit.Coefficients, g)
+			}
 			pr.Residual = p.Y - pr.Fitted
 			if xb, _, inv := c.invert(p.Y, fit.Coefficients); inv && Finite(xb) {
 				pr.BackCalculated, pr.HasBackCalc = xb, true
@@ -520,8 +535,13 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 		}
 	}
 	if ok {
+		// A level's fitted response is that of its readings (the same x).
+		for _, l := range levels {
+			l.meanYHat = r.Points[pidx[l.idx[0]]].Fitted
+		}
 		cd.ResponseFloor = floorOf(len(pidx), func(k int) float64 { return r.Points[pidx[k]].Fitted })
 	} else {
+		setLevelFits(levels, fit)
 		cd.ResponseFloor = responseFloor(x, fit)
 	}
 	for k, i := range pidx {
@@ -567,7 +587,7 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 	defer t.free()
 	mc := minLevelsCheck(xs, opt.Policy, t)
 	mc.Detail, mc.Mandatory = t.str(), opt.Policy.mandatory(CheckMinLevels)
-	r.Checks = append(r.Checks, convergenceCheck(fit), mc)
+	r.Checks = append(make([]Check, 0, 6), convergenceCheck(fit), mc)
 	if ok {
 		cd.Replicates = medianReplicates(judged)
 		r.profile(judged, cd)
@@ -633,9 +653,13 @@ func medianReplicates(levels []*curveLevel) int {
 	if len(levels) == 0 {
 		return 1
 	}
-	n := make([]int, len(levels))
-	for i, l := range levels {
-		n[i] = len(l.idx)
+	var buf [16]int
+	n := buf[:0]
+	if len(levels) > len(buf) {
+		n = make([]int, 0, len(levels))
+	}
+	for _, l := range levels {
+		n = append(n, len(l.idx))
 	}
 	slices.Sort(n)
 	return max(1, n[len(n)/2])
@@ -771,32 +795,100 @@ func (r *Report) rawWeightAt(x, y, fx float64) float64 {
 	return 1
 }
 
-// unknownVar is the variance of the mean of m readings of an unknown at x
-// on the curve, s²/(m·w0(x)), plus the variance of the fitted curve there,
-// ∇βfᵀ·Cov·∇βf; it also returns the curve's value and the gradient buffer
-// is reused.
-func (r *Report) unknownVar(c calibCurve, x float64, m int, grad []float64) (fx, v float64) {
-	fx = c.Eval(x, r.Coefficients, grad)
-	return fx, r.varAt(c, x, fx, m, grad)
+// curveVar is the variance of the mean of m readings of an unknown on the
+// curve at x, s²/(m·w0(x)), plus the variance of the fitted curve there,
+// ∇βfᵀ·Cov·∇βf (see at), for one report at many x (the precision profile,
+// the band inversion): what depends only on the report (the covariance as
+// one array, s², the weight scale, ln c) is taken once.
+type curveVar struct {
+	r        *Report
+	c        calibCurve
+	beta     []float64
+	logistic bool // c is a logistic, evaluated from ln(x/c)
+	five     bool
+	m, s2    float64 // readings per unknown, s²
+	s2n      float64 // 1/s²: the θ model's weights on the calibrators' scale (s2Norm); else 0
+	lnc      float64 // ln c of a logistic
+	cov      [25]float64
+	grad     []float64 // ∇βf of a curve that is not a logistic
 }
 
-// unknownVarSlope is unknownVar that also returns the curve's slope at x,
-// from the same evaluation of the curve.
-func (r *Report) unknownVarSlope(c calibCurve, x float64, m int, grad []float64) (fx, v, slope float64) {
-	fx, slope = c.evalSlope(x, r.Coefficients, grad)
-	return fx, r.varAt(c, x, fx, m, grad), slope
-}
-
-// varAt is unknownVar given fx = f(x) and grad = ∇βf(x).
-func (r *Report) varAt(c calibCurve, x, fx float64, m int, grad []float64) (v float64) {
-	w0 := r.WeightScale * r.rawWeightAt(x, fx, fx)
+// newCurveVar prepares curveVar for m readings of an unknown.
+func (r *Report) newCurveVar(c calibCurve, m int) curveVar {
+	p := len(r.Coefficients)
+	cv := curveVar{r: r, c: c, beta: r.Coefficients, m: float64(m), s2: r.ResidualSD * r.ResidualSD}
+	if l, ok := c.(logistic); ok && r.Coefficients[2] > 0 {
+		cv.logistic, cv.five, cv.lnc = true, l.five, math.Log(r.Coefficients[2])
+	} else {
+		cv.grad = make([]float64, p)
+	}
 	if r.Weighting == WeightInvS2 {
 		// Level SDs set the calibrators' scale; the unknown's weight
 		// follows the θ model normalised like them.
-		w0 = r.WeightScale * r.rawWeightAt(x, fx, fx) * r.s2Norm()
+		cv.s2n = r.s2Norm()
 	}
-	v = r.ResidualSD * r.ResidualSD / (float64(m) * w0)
-	return v + quadForm(r.Covariance, grad)
+	for j := range p {
+		copy(cv.cov[j*p:j*p+p], r.Covariance[j][:p])
+	}
+	return cv
+}
+
+// at returns f(x), the variance and the slope f′(x) (from the same
+// evaluation of the curve).
+func (cv *curveVar) at(x float64) (fx, v, slope float64) {
+	if cv.logistic && x > 0 {
+		return cv.atU(logU(x, cv.beta[2]), x)
+	}
+	fx, slope = cv.c.evalSlope(x, cv.beta, cv.grad)
+	return fx, cv.varAt(x, fx, cv.grad), slope
+}
+
+// atU is at for a logistic at x > 0 given u = ln(x/c).
+func (cv *curveVar) atU(u, x float64) (fx, v, slope float64) {
+	if !cv.five {
+		// The 4PL written out (evalU and evalSlope with g = 1).
+		a, b, c, d := cv.beta[0], cv.beta[1], cv.beta[2], cv.beta[3]
+		h, lg, _ := core4(b * u)
+		k := (a - d) * h * lg
+		g := [4]float64{h, -k * u, k * b / c, lg}
+		fx = d + (a-d)*h
+		return fx, cv.varAt(x, fx, g[:]), -(a - d) * (h * lg) * b / x
+	}
+	l := logistic{five: true}
+	var ga [5]float64
+	g := ga[:l.NumParams()]
+	fx, hl := l.evalU(u, cv.beta, g)
+	slope = -(cv.beta[0] - cv.beta[3]) * l.g(cv.beta) * hl * cv.beta[1] / x
+	return fx, cv.varAt(x, fx, g), slope
+}
+
+// varAt is the variance given fx = f(x) and g = ∇βf(x).
+func (cv *curveVar) varAt(x, fx float64, g []float64) float64 {
+	w0 := cv.r.WeightScale * cv.r.rawWeightAt(x, fx, fx)
+	if cv.s2n != 0 {
+		w0 *= cv.s2n
+	}
+	v := cv.s2 / (cv.m * w0)
+	p := len(g)
+	if p == 4 {
+		// The 4PL written out (the same sums in the same order).
+		c, g := (*[16]float64)(cv.cov[:16]), (*[4]float64)(g)
+		for j := range 4 {
+			s := c[4*j]*g[0] + c[4*j+1]*g[1] + c[4*j+2]*g[2] + c[4*j+3]*g[3]
+			v += g[j] * s
+		}
+		return v
+	}
+	cov := cv.cov[:p*p]
+	for j, gj := range g {
+		row := cov[j*p : j*p+p]
+		var s float64
+		for k, gk := range g {
+			s += row[k] * gk
+		}
+		v += gj * s
+	}
+	return v
 }
 
 // quadForm is gᵀ·C·g.
@@ -841,18 +933,24 @@ func (r *Report) profile(levels []*curveLevel, cd *CurveDetails) {
 	if len(levels) < 2 || r.Range.Low <= 0 {
 		return
 	}
-	c := curveOf(r.Model)
-	grad := make([]float64, len(r.Coefficients))
+	cv := r.newCurveVar(curveOf(r.Model), cd.Replicates)
 	const n = 33
 	lo, hi := math.Log(r.Range.Low), math.Log(r.Range.High)
 	cd.Profile = make([]ProfilePoint, n)
 	bestA, bestB, a := -1, -1, -1
 	for i := range n {
-		x := math.Exp(lo + (hi-lo)*float64(i)/float64(n-1))
+		t := lo + (hi-lo)*float64(i)/float64(n-1)
+		x := math.Exp(t)
 		if i == n-1 {
-			x = r.Range.High
+			x, t = r.Range.High, hi
 		}
-		_, v, sl := r.unknownVarSlope(c, x, cd.Replicates, grad)
+		var v, sl float64
+		if cv.logistic {
+			// ln(x/c) = t − ln c: the grid is even in ln x.
+			_, v, sl = cv.atU(t-cv.lnc, x)
+		} else {
+			_, v, sl = cv.at(x)
+		}
 		se := math.Sqrt(v) / math.Abs(sl)
 		pp := ProfilePoint{X: x}
 		if Finite(se) {

@@ -173,45 +173,77 @@ func (l logistic) evalU(u float64, beta, grad []float64) (float64, float64) {
 
 // evalBatch is Eval over every reading, with lx[i] = ln x[i] given (the
 // solver computes it once): f[i] = f(x[i]; β) and, when jac is not nil, the
-// gradients column-major, ∂f/∂βⱼ at x[i] in jac[j*n+i]. ln c is taken once.
-func (l logistic) evalBatch(x, lx, beta, f, jac []float64) {
+// gradients column-major and weighted, sw[i]·∂f/∂βⱼ at x[i] in jac[j*n+i].
+// ln c (and for the 4PL a − d and b/c) are taken once.
+func (l logistic) evalBatch(x, lx, sw, beta, f, jac []float64) {
 	n, p := len(x), l.NumParams()
-	ok := beta[2] > 0
-	lc := math.Log(beta[2])
-	f = f[:n]
-	lx = lx[:n]
-	var g [5]float64
-	var ja, jb, jc, jd []float64 // the 4PL's Jacobian columns
-	if jac != nil && !l.five {
-		ja, jb, jc, jd = jac[:n], jac[n:2*n], jac[2*n:3*n], jac[3*n:4*n]
+	f, lx = f[:n], lx[:n]
+	if !(beta[2] > 0) {
+		for i := range f {
+			f[i] = math.NaN()
+		}
+		return
 	}
+	lc := math.Log(beta[2])
+	if !l.five && jac != nil {
+		l.evalBatch4(x, lx, sw, lc, beta, f, jac)
+		return
+	}
+	var g [5]float64
 	for i, xi := range x {
 		var gi []float64
 		if jac != nil {
 			gi = g[:p]
 		}
-		switch {
-		case !(xi > 0):
-			f[i] = l.evalZero(xi, beta, gi)
-		case !ok:
-			f[i] = math.NaN()
-		case !l.five:
-			// The 4PL written out (evalU with g = 1): the solver's loop.
-			a, b, c, d := beta[0], beta[1], beta[2], beta[3]
-			u := lx[i] - lc
-			h, lg, _ := core4(b * u)
-			f[i] = d + (a-d)*h
-			if jac != nil {
-				k := (a - d) * h * lg
-				ja[i], jb[i], jc[i], jd[i] = h, -k*u, k*b/c, lg
-			}
-			continue
-		default:
+		if xi > 0 {
 			f[i], _ = l.evalU(lx[i]-lc, beta, gi)
+		} else {
+			f[i] = l.evalZero(xi, beta, gi)
 		}
 		for j, v := range gi {
-			jac[j*n+i] = v
+			jac[j*n+i] = sw[i] * v
 		}
+	}
+}
+
+// evalBatch4 is evalBatch for the 4PL with its Jacobian (evalU with g = 1
+// written out): the solver's inner loop.
+func (l logistic) evalBatch4(x, lx, sw []float64, lc float64, beta, f, jac []float64) {
+	n := len(f)
+	a, b, d := beta[0], beta[1], beta[3]
+	amd, bc := a-d, b/beta[2]
+	// Every slice of length n, so that the loop checks no bounds.
+	ja, jb, jc, jd := jac[:n], jac[n:][:n], jac[2*n:][:n], jac[3*n:][:n]
+	x, lx, sw = x[:n], lx[:n], sw[:n]
+	var g [4]float64
+	// A reading at the same concentration as the one before it (a
+	// replicate) shares its logistic: h, L and u are computed once per run
+	// of equal x.
+	px := math.NaN()
+	var u, h, lg float64
+	for i := range n {
+		s := sw[i]
+		if !(x[i] > 0) {
+			f[i] = l.evalZero(x[i], beta, g[:])
+			ja[i], jb[i], jc[i], jd[i] = s*g[0], s*g[1], s*g[2], s*g[3]
+			px = math.NaN()
+			continue
+		}
+		if x[i] != px {
+			px, u = x[i], lx[i]-lc
+			// core4(b·u) written out: Go does not inline it, and this
+			// is the solver's innermost loop.
+			t := b * u
+			e := math.Exp(-math.Abs(t))
+			h = 1 / (1 + e)
+			lg = e * h
+			if t > 0 {
+				h, lg = lg, h
+			}
+		}
+		f[i] = d + amd*h
+		sk := s * amd * h * lg
+		ja[i], jb[i], jc[i], jd[i] = s*h, -sk*u, sk*bc, s*lg
 	}
 }
 

@@ -1,6 +1,11 @@
 package calib
 
-import "math"
+import (
+	"math"
+	"sync"
+
+	"gonum.org/v1/gonum/floats"
+)
 
 // Curve is a model for non-linear least squares: a response function of one
 // predictor x and NumParams parameters β, with its analytic Jacobian.
@@ -109,8 +114,10 @@ type NLLSResult struct {
 //
 //	min ‖ [√W·J·D⁻¹; √λ·I]·z + [−√W·r; 0] ‖,  δ = D⁻¹z,
 //
-// by Householder QR (householderQR, allocation-free): one factorisation of √W·J·D⁻¹ per
-// iteration, then one of the small [R; √λ·I] per trial λ, where r is the
+// (in parameter units, min ‖[R; √λ·D]·δ − [Qᵀ·√W·r; 0]‖) by one Householder
+// QR factorisation of [√W·J | √W·r] per iteration (householderQR,
+// allocation-free), then Givens rotations of √λ·D into its R per trial λ
+// (MINPACK's qrsolv), where r is the
 // residual vector, J the analytic Jacobian over the free parameters and
 // D = diag(dⱼ), dⱼ the largest ‖√W·Jⱼ‖ seen so far (so the damping is
 // invariant to rescaling the parameters). λ starts at 1e-3 and follows
@@ -126,26 +133,56 @@ type NLLSResult struct {
 // Every other ending is a typed Outcome, never an error: the caller reads
 // Outcome before using the parameters.
 func SolveNLLS(c Curve, x, y, w []float64, opt NLLSOptions) (NLLSResult, error) {
+	return solveNLLS(c, x, nil, y, w, opt)
+}
+
+// solveNLLS is SolveNLLS given lx[i] = ln x[i] (nil: computed here when
+// the curve evaluates in batches).
+func solveNLLS(c Curve, x, lx, y, w []float64, opt NLLSOptions) (NLLSResult, error) {
 	p := c.NumParams()
 	n := len(x)
 	if err := checkNLLSInput(p, x, y, w, &opt); err != nil {
 		return NLLSResult{}, err
 	}
-	free := make([]int, 0, p)
+	k := 0
 	for j := 0; j < p; j++ {
 		if opt.Fixed == nil || !opt.Fixed[j] {
-			free = append(free, j)
+			k++
 		}
 	}
-	if n <= len(free) {
-		return NLLSResult{}, inputErr("points", "%d readings for %d free parameters", n, len(free))
+	if n <= k {
+		return NLLSResult{}, inputErr("points", "%d readings for %d free parameters", n, k)
 	}
-	s := newNLLSState(c, x, y, w, opt, free)
-	if !s.evalJacobian() {
+	s := newNLLSState(c, x, lx, y, w, opt, k)
+	defer s.release()
+	s.ss = s.residuals(s.beta, s.r, s.jfull)
+	if !s.useJacobian() {
 		return NLLSResult{}, inputErr("start", "the model or its Jacobian is not finite at the starting parameters")
 	}
 	res := s.iterate()
 	return s.finish(res), nil
+}
+
+// nllsScratch is the memory of one solve: the state, its free list and
+// flags, and one backing array for every float64 buffer. A finished solve
+// returns it to nllsPool (its results never point into it), so that a
+// fit allocates little more than what it returns.
+type nllsScratch struct {
+	s    nllsState
+	free [8]int
+	act  [8]bool
+	buf  []float64
+}
+
+var nllsPool = sync.Pool{New: func() any { return new(nllsScratch) }}
+
+// release returns the state's memory to nllsPool, dropping its references
+// to the caller's data.
+func (s *nllsState) release() {
+	sc := s.scratch
+	buf := sc.buf
+	*sc = nllsScratch{buf: buf}
+	nllsPool.Put(sc)
 }
 
 // checkNLLSInput validates the data and options and fills the defaults.
@@ -211,17 +248,20 @@ func bounds(opt NLLSOptions, j int) (lo, hi float64) {
 
 // batchCurve is a Curve that evaluates every reading in one call, given
 // lx[i] = ln x[i] (−Inf at 0, NaN below), which the solver computes once:
-// f[i] = f(x[i]; β) and, when jac is not nil, the gradients column-major:
-// ∂f/∂βⱼ at x[i] in jac[j*n+i]. The logistic models implement it, so that
-// what depends only on β (ln c) is computed once per pass; other curves
-// are evaluated reading by reading through Eval.
+// f[i] = f(x[i]; β) and, when jac is not nil, the gradients column-major,
+// each row weighted: sw[i]·∂f/∂βⱼ at x[i] in jac[j*n+i]. The logistic
+// models implement it, so that what depends only on β (ln c) is computed
+// once per pass; other curves are evaluated reading by reading through
+// Eval.
 type batchCurve interface {
-	evalBatch(x, lx, beta, f, jac []float64)
+	evalBatch(x, lx, sw, beta, f, jac []float64)
 }
 
 // nllsState is the working state of one SolveNLLS call. Every buffer is
-// allocated once, in newNLLSState; an iteration allocates nothing.
+// taken once, in newNLLSState (from nllsPool); an iteration allocates
+// nothing.
 type nllsState struct {
+	scratch *nllsScratch // the memory s lives in
 	c       Curve
 	bc      batchCurve // c as a batchCurve, or nil
 	x, y    []float64
@@ -235,51 +275,81 @@ type nllsState struct {
 	r       []float64 // √W·(y − f) at beta
 	rt      []float64 // the same at trial
 	f       []float64 // model values, scratch
-	jfull   []float64 // the Jacobian over all p parameters, column-major (column j at jfull[j*n:]), scratch
-	jac     []float64 // √W·J over the free parameters, column-major: column l at jac[l*n:]
-	jacAt   bool      // jac and r belong to beta
+	jfull   []float64 // √W·J over all p parameters at beta, column-major (column j at jfull[j*n:])
+	jfullT  []float64 // the same at trial (swapped with jfull when a step is taken)
+	jac     []float64 // √W·J over the free parameters, column-major: column l at jac[l*n:] (see useJacobian)
+	jacBuf  []float64 // jac's own storage when some parameter is fixed
+	jacAt   bool      // jac belongs to beta (else jfull does and jac is to be derived)
 	d       []float64 // Moré's column scales
 	ss      float64
 	ynorm   float64   // ‖√W·y‖
 	big     []float64 // [√W·J·D⁻¹ | √W·r], n×(k+1) column-major, factorised once per iteration
-	rk      []float64 // leading k×k block of R, row-major
+	rk      []float64 // leading k×k block of R (of √W·J, unscaled), row-major
 	qtr     []float64 // first k entries of Qᵀ·√W·r
-	small   []float64 // [R | Qᵀ·√W·r; √λ·I | 0], 2k×(k+1) column-major
-	z       []float64
+	small   []float64 // R of [R; √λ·I] (k×k row-major), built by step
+	z       []float64 // scratch of the covariance
+	wa      []float64 // Qᵀ·√W·r rotated along with small
+	sdiag   []float64 // the row of √λ·I being rotated in
 	g       []float64 // Jᵀ·W·r over the free parameters
+	cn      []float64 // ‖√W·Jⱼ‖² over the free parameters
 	delta   []float64 // trial step
 	active  []bool    // free parameter held at a bound this iteration
-	atBound []bool
 }
 
-func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nllsState {
-	n, p, k := len(x), c.NumParams(), len(free)
+func newNLLSState(c Curve, x, lx, y, w []float64, opt NLLSOptions, k int) *nllsState {
+	n, p := len(x), c.NumParams()
 	k1 := max(k, 1)
-	// One backing array for every float64 buffer.
-	sizes := []int{n, p, p, p, n, n, n, n * p, n * k, k, n * (k + 1), k * k, k, 2 * k1 * (k1 + 1), k1, k, k, n}
-	tot := 0
-	for _, v := range sizes {
-		tot += v
+	bc, batch := c.(batchCurve)
+	// One backing array for every float64 buffer (the covariance at the end
+	// reuses big and small).
+	tot := 4*n + 3*p + 2*n*p + n*(k+1) + k*k + k1*k1 + 3*k1 + 5*k
+	if k < p {
+		tot += n * k
 	}
-	buf := make([]float64, tot)
+	if batch && lx == nil {
+		tot += n
+	}
+	st := nllsPool.Get().(*nllsScratch)
+	if cap(st.buf) < tot {
+		st.buf = make([]float64, tot)
+	}
+	buf := st.buf[:tot]
+	clear(buf)
 	take := func(m int) []float64 {
 		v := buf[:m:m]
 		buf = buf[m:]
 		return v
 	}
-	s := &nllsState{c: c, x: x, y: y, opt: opt, free: free}
+	s := &st.s
+	s.scratch = st
+	s.c, s.x, s.y, s.opt = c, x, y, opt
+	if p <= len(st.free) {
+		s.free, s.active = st.free[:0:p], st.act[:k:k]
+	} else {
+		s.free, s.active = make([]int, 0, p), make([]bool, k)
+	}
+	for j := 0; j < p; j++ {
+		if opt.Fixed == nil || !opt.Fixed[j] {
+			s.free = append(s.free, j)
+		}
+	}
 	s.sw, s.beta, s.trial, s.grad = take(n), take(p), take(p), take(p)
-	s.r, s.rt, s.f, s.jfull, s.jac = take(n), take(n), take(n), take(n*p), take(n*k)
+	s.r, s.rt, s.f, s.jfull, s.jfullT = take(n), take(n), take(n), take(n*p), take(n*p)
+	if k < p {
+		s.jacBuf = take(n * k)
+	}
 	s.d, s.big, s.rk, s.qtr = take(k), take(n*(k+1)), take(k*k), take(k)
-	s.small, s.z, s.g, s.delta = take(2*k1*(k1+1)), take(k1), take(k), take(k)
+	s.small, s.z, s.wa, s.sdiag, s.g, s.delta = take(k1*k1), take(k1), take(k1), take(k1), take(k), take(k)
+	s.cn = take(k)
 	copy(s.beta, opt.Start)
-	bools := make([]bool, k+p)
-	s.active, s.atBound = bools[:k:k], bools[k:]
-	if bc, ok := c.(batchCurve); ok {
+	if batch {
 		s.bc = bc
-		s.lx = take(n)
-		for i, v := range x {
-			s.lx[i] = math.Log(v)
+		s.lx = lx
+		if lx == nil {
+			s.lx = take(n)
+			for i, v := range x {
+				s.lx[i] = math.Log(v)
+			}
 		}
 	}
 	for i := range s.sw {
@@ -287,43 +357,41 @@ func newNLLSState(c Curve, x, y, w []float64, opt NLLSOptions, free []int) *nlls
 		if w != nil {
 			s.sw[i] = math.Sqrt(w[i])
 		}
-		s.ynorm = math.Hypot(s.ynorm, s.sw[i]*y[i])
+		s.rt[i] = s.sw[i] * y[i] // scratch until the first trial
 	}
+	s.ynorm = norm2(s.rt)
 	return s
 }
 
-// eval sets s.f to the model at beta and, when jac, s.jfull to its
-// Jacobian.
-func (s *nllsState) eval(beta []float64, jac bool) {
-	var jf []float64
-	if jac {
-		jf = s.jfull
-	}
+// eval sets s.f to the model at beta and jf (n×p column-major) to its
+// weighted Jacobian √W·J.
+func (s *nllsState) eval(beta, jf []float64) {
 	if s.bc != nil {
-		s.bc.evalBatch(s.x, s.lx, beta, s.f, jf)
+		s.bc.evalBatch(s.x, s.lx, s.sw, beta, s.f, jf)
 		return
 	}
 	n, p := len(s.x), len(beta)
 	g := s.grad
 	for i, xi := range s.x {
-		if !jac {
-			s.f[i] = s.c.Eval(xi, beta, nil)
-			continue
-		}
 		s.f[i] = s.c.Eval(xi, beta, g)
 		for j := 0; j < p; j++ {
-			jf[j*n+i] = g[j]
+			jf[j*n+i] = s.sw[i] * g[j]
 		}
 	}
 }
 
-// residuals sets r = √W·(y − f(x; beta)) and returns Σr², or NaN when a
-// value is not finite.
-func (s *nllsState) residuals(beta, r []float64) float64 {
-	s.eval(beta, false)
+// residuals sets r = √W·(y − f(x; beta)) and jf to the Jacobian at beta
+// (one pass: a step is taken far more often than not, and the next
+// iteration then needs no evaluation of its own) and returns Σr², or NaN
+// when a value is not finite.
+func (s *nllsState) residuals(beta, r, jf []float64) float64 {
+	s.eval(beta, jf)
+	n := len(s.x)
+	f, y, sw := s.f[:n], s.y[:n], s.sw[:n]
+	r = r[:n]
 	var ss float64
-	for i := range s.x {
-		ri := s.sw[i] * (s.y[i] - s.f[i])
+	for i, fi := range f {
+		ri := sw[i] * (y[i] - fi)
 		r[i] = ri
 		ss += ri * ri
 	}
@@ -333,36 +401,33 @@ func (s *nllsState) residuals(beta, r []float64) float64 {
 	return ss
 }
 
-// evalJacobian fills r, ss and the weighted Jacobian at beta and updates the
-// column scales; it reports whether everything is finite.
-func (s *nllsState) evalJacobian() bool {
-	s.eval(s.beta, true)
-	n := len(s.x)
-	s.ss = 0
-	for i := range s.x {
-		ri := s.sw[i] * (s.y[i] - s.f[i])
-		s.r[i] = ri
-		s.ss += ri * ri
-	}
-	sw := s.sw[:n]
-	for l, j := range s.free {
-		src, dst := s.jfull[j*n:j*n+n], s.jac[l*n:l*n+n]
-		for i, v := range src {
-			dst[i] = sw[i] * v
-		}
-	}
+// useJacobian takes the weighted Jacobian over the free parameters from
+// s.jfull (which belongs to beta, as do r and ss: s.jac is s.jfull itself
+// when every parameter is free, else a copy of its free columns), its
+// column norms and the gradient Jᵀ·W·r, and updates the column scales; it
+// reports whether everything is finite.
+func (s *nllsState) useJacobian() bool {
+	n, k := len(s.x), len(s.free)
+	r := s.r[:n]
 	s.jacAt = true
 	if !Finite(s.ss) {
 		return false
 	}
-	for l := range s.free {
-		var nn float64
-		for _, v := range s.jac[l*n : l*n+n] {
-			nn += v * v
+	if s.jacBuf == nil {
+		s.jac = s.jfull[:n*k]
+	} else {
+		s.jac = s.jacBuf
+		for l, j := range s.free {
+			copy(s.jac[l*n:l*n+n], s.jfull[j*n:j*n+n])
 		}
+	}
+	for l := range s.free {
+		col := s.jac[l*n : l*n+n]
+		nn, gl := floats.Dot(col, col), floats.Dot(col, r)
 		if !Finite(nn) {
 			return false
 		}
+		s.cn[l], s.g[l] = nn, gl
 		s.d[l] = max(s.d[l], math.Sqrt(nn))
 	}
 	return true
@@ -370,7 +435,6 @@ func (s *nllsState) evalJacobian() bool {
 
 // iterate runs the Levenberg–Marquardt loop and returns how it ended.
 func (s *nllsState) iterate() NLLSResult {
-	n := len(s.x)
 	opt := s.opt
 	lambda, nu := 1e-3, 2.0
 	g, delta := s.g, s.delta
@@ -381,17 +445,10 @@ func (s *nllsState) iterate() NLLSResult {
 			res.Outcome, res.Criterion = Converged, "zero residual"
 			return res
 		}
-		// Gradient and the active set.
+		// Gradient (from useJacobian) and the active set.
 		gmax := 0.0
 		for l, j := range s.free {
-			var gl, cn float64
-			col := s.jac[l*n : l*n+n]
-			r := s.r[:n]
-			for i, a := range col {
-				gl += a * r[i]
-				cn += a * a
-			}
-			g[l] = gl
+			gl, cn := g[l], s.cn[l]
 			lo, hi := bounds(opt, j)
 			s.active[l] = (s.beta[j] <= lo && gl < 0) || (s.beta[j] >= hi && gl > 0)
 			if !s.active[l] && cn > 0 {
@@ -415,7 +472,7 @@ func (s *nllsState) iterate() NLLSResult {
 			ssNew := math.NaN()
 			if ok {
 				pred = s.predicted(delta)
-				ssNew = s.residuals(s.trial, s.rt)
+				ssNew = s.residuals(s.trial, s.rt, s.jfullT)
 			}
 			if !math.IsNaN(ssNew) {
 				act = s.ss - ssNew
@@ -424,7 +481,7 @@ func (s *nllsState) iterate() NLLSResult {
 				}
 				if math.Abs(act) <= opt.FTol*s.ss && pred <= opt.FTol*s.ss && ratio <= 2 {
 					if act > 0 {
-						s.accept()
+						s.accept(ssNew)
 					}
 					res.Outcome, res.Criterion = Converged, "relative reduction in SS"
 					return res
@@ -432,12 +489,13 @@ func (s *nllsState) iterate() NLLSResult {
 			}
 			if ratio > 0 {
 				sn, bn := s.scaledNorms(delta)
-				s.accept()
-				lambda *= max(1.0/3, 1-math.Pow(2*ratio-1, 3))
+				s.accept(ssNew)
+				t := 2*ratio - 1
+				lambda *= max(1.0/3, 1-t*t*t)
 				lambda = max(lambda, 1e-300)
 				nu = 2
 				if sn <= opt.XTol*bn {
-					if !s.evalJacobian() {
+					if !s.useJacobian() {
 						res.Outcome, res.Criterion = Stalled, "the Jacobian is not finite at the accepted parameters"
 						return res
 					}
@@ -454,7 +512,7 @@ func (s *nllsState) iterate() NLLSResult {
 			lambda *= nu
 			nu *= 2
 		}
-		if !s.evalJacobian() {
+		if !s.useJacobian() {
 			res.Outcome, res.Criterion = Stalled, "the Jacobian is not finite at the accepted parameters"
 			return res
 		}
@@ -465,32 +523,25 @@ func (s *nllsState) iterate() NLLSResult {
 const nllsEps = 0x1p-52
 
 // factor computes, once per iteration, the Householder QR factorisation
-// of [√W·J·D⁻¹ | √W·r] (columns of held parameters zeroed): its leading
-// k×k block R and the first k entries of Qᵀ·√W·r reduce every trial step
-// of the iteration to a 2k×k problem (as in Moré's lmpar).
+// of [√W·J | √W·r] (columns of held parameters zeroed): its leading k×k
+// block R and the first k entries of Qᵀ·√W·r reduce every trial step of
+// the iteration to a k×k problem (as in Moré's lmpar). The scaling D⁻¹ of
+// the columns is applied to R afterwards (step): scaling a column scales
+// the same column of R and leaves Q as it is.
 func (s *nllsState) factor() {
 	n, k := len(s.x), len(s.free)
 	a := s.big
+	copy(a[:n*k], s.jac)
 	for l := 0; l < k; l++ {
-		col := a[l*n : l*n+n]
 		if s.active[l] {
-			clear(col)
-			continue
-		}
-		sc := s.scale(l)
-		for i, v := range s.jac[l*n : l*n+n] {
-			col[i] = v / sc
+			clear(a[l*n : l*n+n])
 		}
 	}
 	copy(a[k*n:k*n+n], s.r)
 	householderQR(a, n, k+1, k)
 	for j := 0; j < k; j++ {
-		for l := 0; l < k; l++ {
-			v := 0.0
-			if l >= j {
-				v = a[l*n+j]
-			}
-			s.rk[j*k+l] = v
+		for l := j; l < k; l++ {
+			s.rk[j*k+l] = a[l*n+j] // the upper triangle: the lower one is never read
 		}
 		s.qtr[j] = a[k*n+j]
 	}
@@ -513,24 +564,16 @@ func householderQR(a []float64, n, m, kc int) {
 		beta := -math.Copysign(nrm, alpha)
 		tau := (beta - alpha) / beta
 		inv := 1 / (alpha - beta)
+		// The reflector is I − τ·u·uᵀ, u = [1; inv·v]: v is left unscaled
+		// and inv applied to the products.
 		v := col[j+1:]
-		for i := range v {
-			v[i] *= inv
-		}
 		col[j] = beta
 		for l := j + 1; l < m; l++ {
 			cl := a[l*n : l*n+n]
 			cr := cl[j+1:]
-			cr = cr[:len(v)]
-			w := cl[j]
-			for i, vi := range v {
-				w += vi * cr[i]
-			}
-			w *= tau
+			w := tau * (cl[j] + inv*floats.Dot(v, cr))
 			cl[j] -= w
-			for i, vi := range v {
-				cr[i] -= w * vi
-			}
+			floats.AddScaled(cr, -w*inv, v)
 		}
 	}
 }
@@ -538,10 +581,7 @@ func householderQR(a []float64, n, m, kc int) {
 // norm2 is the Euclidean norm of v: a plain sum of squares, redone scaled
 // by the largest |vᵢ| when that sum over- or underflows.
 func norm2(v []float64) float64 {
-	var ss float64
-	for _, x := range v {
-		ss += x * x
-	}
+	ss := floats.Dot(v, v)
 	if ss > 0x1p-900 && ss < 0x1p900 {
 		return math.Sqrt(ss)
 	}
@@ -570,39 +610,67 @@ func (s *nllsState) scale(l int) float64 {
 }
 
 // step solves the damped least-squares problem for λ,
-// min ‖[R; √λ·I]·z − [Qᵀ·√W·r; 0]‖ (by Householder QR of the 2k×k matrix,
-// then back substitution), into delta = D⁻¹z (in parameter units, zero for
-// held parameters) and sets s.trial to β + δ projected onto the box. It
-// reports whether the solve gave finite values.
+// min ‖[R·D⁻¹; √λ·I]·z − [Qᵀ·√W·r; 0]‖, δ = D⁻¹z, in parameter units as
+// min ‖[R; √λ·D]·δ − [Qᵀ·√W·r; 0]‖ (zero for held parameters, whose row
+// of the diagonal is dⱼ and whose column of R is zero), and sets s.trial
+// to β + δ projected onto the box. It reports whether the solve gave
+// finite values.
+//
+// The rows of the diagonal are rotated into R one at a time by Givens
+// rotations, as in MINPACK's qrsolv (Moré 1978), which keeps the triangle
+// and costs O(k³) with no refactorisation of the 2k×k matrix; back
+// substitution then gives δ.
 func (s *nllsState) step(lambda float64, delta []float64) bool {
 	k := len(s.free)
-	m := 2 * k
 	sl := math.Sqrt(lambda)
-	a := s.small[:m*(k+1)]
-	clear(a)
-	for l := 0; l < k; l++ {
-		col := a[l*m : l*m+m]
-		for j := 0; j <= l; j++ {
-			col[j] = s.rk[j*k+l]
+	a := s.small[:k*k] // R, row-major: (l, i) at a[l*k+i], i ≥ l
+	copy(a, s.rk)
+	wa, sdiag := s.wa[:k], s.sdiag[:k]
+	copy(wa, s.qtr)
+	delta = delta[:k]
+	for j := 0; j < k; j++ {
+		for i := j + 1; i < k; i++ {
+			sdiag[i] = 0
 		}
-		col[k+l] = sl
-		if s.active[l] {
-			col[k+l] = 1
+		sdiag[j] = s.scale(j)
+		if !s.active[j] {
+			sdiag[j] *= sl
+		}
+		var qtbpj float64 // the rotated right-hand side of the row (0 at first)
+		for l := j; l < k; l++ {
+			sd := sdiag[l]
+			if sd == 0 {
+				continue
+			}
+			rll := a[l*k+l]
+			var cs, sn float64
+			if math.Abs(rll) < math.Abs(sd) {
+				cot := rll / sd
+				sn = 0.5 / math.Sqrt(0.25+0.25*cot*cot)
+				cs = sn * cot
+			} else {
+				tan := sd / rll
+				cs = 0.5 / math.Sqrt(0.25+0.25*tan*tan)
+				sn = cs * tan
+			}
+			a[l*k+l] = cs*rll + sn*sd
+			wa[l], qtbpj = cs*wa[l]+sn*qtbpj, -sn*wa[l]+cs*qtbpj
+			for i := l + 1; i < k; i++ {
+				v, t := a[l*k+i], sdiag[i]
+				a[l*k+i], sdiag[i] = cs*v+sn*t, -sn*v+cs*t
+			}
 		}
 	}
-	copy(a[k*m:k*m+k], s.qtr)
-	householderQR(a, m, k+1, k)
-	z := s.z[:k]
 	for j := k - 1; j >= 0; j-- {
-		v := a[k*m+j]
+		v := wa[j]
 		for l := j + 1; l < k; l++ {
-			v -= a[l*m+j] * z[l]
+			v -= a[j*k+l] * delta[l]
 		}
-		z[j] = v / a[j*m+j]
+		delta[j] = v / a[j*k+j]
 	}
 	copy(s.trial, s.beta)
 	for l, j := range s.free {
-		v := z[l] / s.scale(l)
+		v := delta[l]
 		if s.active[l] {
 			v = 0
 		}
@@ -618,22 +686,23 @@ func (s *nllsState) step(lambda float64, delta []float64) bool {
 }
 
 // predicted is the reduction of SS predicted by the linearised model for
-// the (projected) step δ: ‖r‖² − ‖r − J·δ‖² = Σ (J·δ)ᵢ(2rᵢ − (J·δ)ᵢ),
-// summed in that form so that it does not cancel against ‖r‖².
+// the (projected) step δ: ‖r‖² − ‖r − J·δ‖² = 2·gᵀδ − ‖J·δ‖², with
+// g = Jᵀ·W·r and ‖J·δ‖ = ‖R·δ‖ from the iteration's factor (held
+// parameters have δ = 0 and a zeroed column).
 func (s *nllsState) predicted(delta []float64) float64 {
-	n := len(s.x)
-	jd := s.f[:n] // scratch: the model values are not needed between passes
-	clear(jd)
-	for l, dl := range delta {
-		for i, v := range s.jac[l*n : l*n+n] {
-			jd[i] += v * dl
+	k := len(s.free)
+	rk, g := s.rk[:k*k], s.g[:k]
+	delta = delta[:k]
+	var gd, jd2 float64
+	for j, gj := range g {
+		gd += gj * delta[j]
+		var v float64
+		for l := j; l < k; l++ {
+			v += rk[j*k+l] * delta[l]
 		}
+		jd2 += v * v
 	}
-	var pred float64
-	for i, v := range jd {
-		pred += v * (2*s.r[i] - v)
-	}
-	return pred
+	return 2*gd - jd2
 }
 
 // scaledNorms returns ‖D·δ‖ and ‖D·β‖ over the free parameters.
@@ -646,28 +715,32 @@ func (s *nllsState) scaledNorms(delta []float64) (float64, float64) {
 	return math.Sqrt(a), math.Sqrt(b)
 }
 
-// accept makes the trial parameters current.
-func (s *nllsState) accept() {
+// accept makes the trial parameters current, with the Jacobian evaluated
+// there and their sum of squares ss.
+func (s *nllsState) accept(ss float64) {
 	s.jacAt = false
+	s.jfull, s.jfullT = s.jfullT, s.jfull
 	copy(s.beta, s.trial)
 	copy(s.r, s.rt)
-	s.ss = 0
-	for _, v := range s.r {
-		s.ss += v * v
-	}
+	s.ss = ss // Σ rtᵢ², as residuals summed it
 }
 
 // finish fills the result at the final parameters: SS, s, df, residuals,
 // bounds and (when the Jacobian has full rank) the covariance.
 func (s *nllsState) finish(res NLLSResult) NLLSResult {
 	n, p, k := len(s.x), len(s.beta), len(s.free)
-	// The Jacobian matches beta unless the last accepted step ended the loop
-	// (by the SS criterion); then it is evaluated at the final parameters.
-	if !s.jacAt && !s.evalJacobian() {
+	// The weighted Jacobian matches beta unless the last accepted step ended
+	// the loop (by the SS criterion); then it is derived from the Jacobian
+	// evaluated with that step's residuals.
+	if !s.jacAt && !s.useJacobian() {
 		res.Outcome, res.Criterion = Stalled, "the Jacobian is not finite at the final parameters"
 	}
-	res.Params = append([]float64(nil), s.beta...)
-	res.Residuals = make([]float64, n)
+	// The result's arrays share one backing array (each capped to its
+	// length).
+	out := make([]float64, p+n+p*p+p)
+	res.Params = out[:p:p]
+	copy(res.Params, s.beta)
+	res.Residuals = out[p : p+n : p+n]
 	for i := range s.x {
 		res.Residuals[i] = s.r[i] / s.sw[i]
 	}
@@ -682,13 +755,13 @@ func (s *nllsState) finish(res NLLSResult) NLLSResult {
 	if res.Outcome != Converged && res.Outcome != Stalled || k == 0 {
 		return res
 	}
-	cov, ok := s.covariance(res.ResidualSD)
-	if !ok {
+	cov := s.small[:k*k]
+	if !s.covariance(res.ResidualSD, cov) {
 		res.Outcome, res.Criterion = Singular, "the Jacobian at the solution is numerically rank-deficient: some parameter combination is not determined by the data"
 		return res
 	}
 	res.Covariance = make([][]float64, p)
-	cb := make([]float64, p*p+p)
+	cb := out[p+n:]
 	res.StdErrors = cb[p*p:]
 	for j := range res.Covariance {
 		res.Covariance[j] = cb[j*p : j*p+p : j*p+p]
@@ -702,20 +775,27 @@ func (s *nllsState) finish(res NLLSResult) NLLSResult {
 	return res
 }
 
-// covariance returns s²(JᵀWJ)⁻¹ (k×k row-major over the free parameters)
-// from the Householder QR factor of √W·J with columns scaled to unit norm,
-// and false when that factor is numerically singular.
-func (s *nllsState) covariance(sd float64) ([]float64, bool) {
+// covariance sets cov to s²(JᵀWJ)⁻¹ (k×k row-major over the free
+// parameters) from the Householder QR factor of √W·J with columns scaled
+// to unit norm, and reports false when that factor is numerically
+// singular. It works in s.big and s.z.
+func (s *nllsState) covariance(sd float64, cov []float64) bool {
 	n, k := len(s.x), len(s.free)
-	work := make([]float64, n*k+k+2*k*k)
-	a, sc, ri, cov := work[:n*k], work[n*k:n*k+k], work[n*k+k:n*k+k+k*k], work[n*k+k+k*k:]
+	a, sc := s.big[:n*k], s.z[:k]
+	var riBuf [25]float64 // R⁻¹, on the stack for up to 5 free parameters
+	var ri []float64
+	if k*k <= len(riBuf) {
+		ri = riBuf[:k*k]
+	} else {
+		ri = make([]float64, k*k)
+	}
 	for l := 0; l < k; l++ {
 		var nn float64
 		for _, v := range s.jac[l*n : l*n+n] {
 			nn += v * v
 		}
 		if !(nn > 0) || math.Sqrt(nn)*math.Abs(s.beta[s.free[l]]) <= 1e-12*s.ynorm {
-			return nil, false
+			return false
 		}
 		sc[l] = 1 / math.Sqrt(nn)
 		for i, v := range s.jac[l*n : l*n+n] {
@@ -730,7 +810,7 @@ func (s *nllsState) covariance(sd float64) ([]float64, bool) {
 	}
 	for l := 0; l < k; l++ {
 		if !(math.Abs(r(l, l)) > 1e-12*maxd) {
-			return nil, false
+			return false
 		}
 	}
 	// R⁻¹ by back substitution; (AᵀA)⁻¹ = R⁻¹R⁻ᵀ.
@@ -756,8 +836,8 @@ func (s *nllsState) covariance(sd float64) ([]float64, bool) {
 	}
 	for _, v := range cov {
 		if !Finite(v) {
-			return nil, false
+			return false
 		}
 	}
-	return cov, true
+	return true
 }

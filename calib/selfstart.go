@@ -26,7 +26,9 @@ import (
 //   - exponential: y0 the mean response at the lowest concentration (offset
 //     model), a 10 % beyond the response at the highest concentration, b
 //     from −ln(1 − u) = b·x through the origin, u = (y − y0)/a.
-func selfStart(m Model, x, y, w []float64, opt CurveOptions, lower, upper []float64) ([]float64, error) {
+//
+// lx[i] = ln x[i] (−Inf at 0).
+func selfStart(m Model, x, lx, y, w []float64, opt CurveOptions, lower, upper []float64) ([]float64, error) {
 	fixed := func(j int) (float64, bool) {
 		if opt.Fixed != nil && !math.IsNaN(opt.Fixed[j]) {
 			return opt.Fixed[j], true
@@ -37,8 +39,8 @@ func selfStart(m Model, x, y, w []float64, opt CurveOptions, lower, upper []floa
 	var s []float64
 	switch m {
 	case FourPL:
-		s = startLogistic(x, y, ends, fixed)
-		refineAsymptotes(x, y, w, s, fixed)
+		s = startLogistic(x, lx, y, ends, fixed)
+		refineAsymptotes(x, lx, y, w, s, fixed)
 	case FivePL:
 		o := opt
 		o.Model, o.Start, o.MaxIter = FourPL, nil, 0
@@ -117,7 +119,7 @@ func lineFit(u, v []float64) (b0, b1 float64, ok bool) {
 	return mv - b1*mu, b1, Finite(b1, mv-b1*mu)
 }
 
-func startLogistic(x, y []float64, e [4]float64, fixed func(int) (float64, bool)) []float64 {
+func startLogistic(x, lnx, y []float64, e [4]float64, fixed func(int) (float64, bool)) []float64 {
 	spread := e[3] - e[2]
 	a, d := e[3]+0.05*spread, e[2]-0.05*spread // falling curve
 	if e[1] > e[0] {
@@ -129,11 +131,11 @@ func startLogistic(x, y []float64, e [4]float64, fixed func(int) (float64, bool)
 	if v, ok := fixed(3); ok {
 		d = v
 	}
-	buf := make([]float64, 0, 3*len(x))
-	all, lx, z := buf[0:0:len(x)], buf[len(x):len(x):2*len(x)], buf[2*len(x):2*len(x)]
+	buf := make([]float64, 3*len(x)+4) // scratch, and the start at its end
+	all, lx, z := buf[0:0:len(x)], buf[len(x):len(x):2*len(x)], buf[2*len(x):2*len(x):3*len(x)]
 	for i := range x {
 		if x[i] > 0 {
-			l := math.Log(x[i])
+			l := lnx[i]
 			all = append(all, l)
 			if a == d {
 				continue
@@ -152,7 +154,9 @@ func startLogistic(x, y []float64, e [4]float64, fixed func(int) (float64, bool)
 		}
 		b, c = 1, math.Exp(m/float64(len(all)))
 	}
-	return []float64{a, b, c, d}
+	s := buf[3*len(x):]
+	s[0], s[1], s[2], s[3] = a, b, c, d
+	return s
 }
 
 func startPower(x, y []float64) []float64 {
@@ -218,7 +222,7 @@ func startExp(x, y []float64, e [4]float64, offset bool, fixed func(int) (float6
 // least-squares solution of y = a·h + d·(1 − h), h = 1/(1 + (x/c)^b) at
 // the start's b and c, when neither is fixed and the solution is finite
 // and keeps the sign of a − d.
-func refineAsymptotes(x, y, w, s []float64, fixed func(int) (float64, bool)) {
+func refineAsymptotes(x, lx, y, w, s []float64, fixed func(int) (float64, bool)) {
 	if _, ok := fixed(0); ok {
 		return
 	}
@@ -227,10 +231,13 @@ func refineAsymptotes(x, y, w, s []float64, fixed func(int) (float64, bool)) {
 	}
 	b, lc := s[1], math.Log(s[2])
 	var shh, sho, soo, shy, soy float64
+	h, px := 1.0, math.NaN() // h at px, kept for the replicates that follow
 	for i, xi := range x {
-		h := 1.0
-		if xi > 0 {
-			h = 1 / (1 + math.Exp(b*(math.Log(xi)-lc)))
+		if xi != px {
+			px, h = xi, 1.0
+			if xi > 0 {
+				h = 1 / (1 + math.Exp(b*(lx[i]-lc)))
+			}
 		}
 		wi := 1.0
 		if w != nil {
