@@ -96,24 +96,27 @@ func (s *Server) GetCurve(ctx context.Context, req oapi.GetCurveRequestObject) (
 // CreatePredictions converts unknowns' responses into concentrations with
 // intervals and flags.
 func (s *Server) CreatePredictions(ctx context.Context, req oapi.CreatePredictionsRequestObject) (oapi.CreatePredictionsResponseObject, error) {
-	out, err := s.predict(ctx, req.ID.String(), req.Body.Confidence, req.Body.Samples, req.Body.MonteCarlo)
+	out, err := s.predict(ctx, req.ID.String(), req.Body.Confidence, req.Body.Samples, req.Body.MonteCarlo, true)
 	if err != nil {
 		return nil, err
 	}
-	return (*predictionJSONResponse)(&out), nil
+	return out, nil
 }
 
-// predict quantifies samples against curve id; nothing is stored.
-func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confidence, samples []oapi.PredictionSample, mc *oapi.MonteCarloRequest) (oapi.PredictionResponse, error) {
+// predict quantifies samples against curve id; nothing is stored. With
+// direct, the budgets a plan computes are written as JSON into the answer
+// (predictionJSONResponse writes them) rather than into each result's
+// Uncertainty member.
+func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confidence, samples []oapi.PredictionSample, mc *oapi.MonteCarloRequest, direct bool) (*predictionJSONResponse, error) {
 	c, err := s.curve(ctx, id)
 	if err != nil {
-		return oapi.PredictionResponse{}, err
+		return nil, err
 	}
 	// The prediction route read the status with its token (authMiddleware).
 	status, ok := prefetchedStatus(ctx, id)
 	if !ok {
 		if status, err = s.lab.CurveStatus(ctx, id); err != nil {
-			return oapi.PredictionResponse{}, err
+			return nil, err
 		}
 	}
 	r := c.Report
@@ -121,16 +124,23 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 	if confidence != nil {
 		conf = *confidence
 	}
-	out := oapi.PredictionResponse{
+	out := &predictionJSONResponse{PredictionResponse: oapi.PredictionResponse{
 		CurveID: uuidOf(id), Analyte: c.Analyte, Unit: c.Unit, Confidence: conf,
 		CurveStatus: oapi.CurveStatus(status), CurveVerdict: oapi.Verdict(r.Verdict),
 		Cautions: calib.Cautions(), Results: make([]oapi.PredictionResult, 0, len(samples)),
-	}
-	bc, err := s.budgetContext(ctx, c)
+	}}
+	bp, err := s.budgetPlan(ctx, c)
 	if err != nil {
-		return oapi.PredictionResponse{}, err
+		return nil, err
 	}
 	var budgetErr error
+	var f lab.BudgetFigures
+	direct = direct && bp.fast != nil && mc == nil
+	if direct {
+		out.budgetEnd = make([]int, 0, len(samples))
+		out.budgetBuf = predictionBufs.Get().(*[]byte)
+		out.budgetJSON = (*out.budgetBuf)[:0]
+	}
 	err = lab.Predict(c, conf, len(samples), func(i int) ([]float64, float64) {
 		if d := samples[i].Dilution; d != nil {
 			return samples[i].Responses, *d
@@ -138,8 +148,12 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		return samples[i].Responses, 1
 	}, func(i int, pr calib.Prediction) {
 		res := predictionOut(string(samples[i].ID), pr)
-		if bc.Spec != nil && budgetErr == nil {
-			res.Uncertainty, budgetErr = predictionBudget(c, bc, pr, samples[i].Responses, pr.Dilution, mc)
+		switch {
+		case bp.bc.Spec == nil || budgetErr != nil:
+		case direct:
+			budgetErr = out.addBudget(c, bp, pr, samples[i].Responses, &f)
+		default:
+			res.Uncertainty, budgetErr = predictionBudget(c, bp, pr, samples[i].Responses, pr.Dilution, mc, &f)
 		}
 		out.Results = append(out.Results, res)
 	})
@@ -147,7 +161,8 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		err = budgetErr
 	}
 	if err != nil {
-		return oapi.PredictionResponse{}, err
+		out.release()
+		return nil, err
 	}
 	return out, nil
 }

@@ -17,6 +17,8 @@ import (
 	"unicode/utf8"
 
 	"curvekeeper/api/oapi"
+	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
 
 // The encoder below lists the members of these generated types by hand, in
@@ -61,6 +63,13 @@ var (
 // newline included. For a NaN or infinite number it returns dst unchanged and
 // the error encoding/json returns (a *json.UnsupportedValueError).
 func appendPredictionJSON(dst []byte, v *oapi.PredictionResponse) ([]byte, error) {
+	return appendPredictionAnswer(dst, v, nil, nil)
+}
+
+// appendPredictionAnswer is appendPredictionJSON with budgets given as JSON
+// (predictionJSONResponse's budgetJSON and budgetEnd): result i without an
+// Uncertainty member gets the budget budgetJSON holds for it, if any.
+func appendPredictionAnswer(dst []byte, v *oapi.PredictionResponse, budgetJSON []byte, budgetEnd []int) ([]byte, error) {
 	start := len(dst)
 	var bad float64
 	ok := true
@@ -88,7 +97,15 @@ func appendPredictionJSON(dst []byte, v *oapi.PredictionResponse) ([]byte, error
 			if i > 0 {
 				b = append(b, ',')
 			}
-			if b, bad, ok = appendPredictionResult(b, &v.Results[i]); !ok {
+			var budget []byte
+			if i < len(budgetEnd) {
+				from := 0
+				if i > 0 {
+					from = budgetEnd[i-1]
+				}
+				budget = budgetJSON[from:budgetEnd[i]]
+			}
+			if b, bad, ok = appendPredictionResult(b, &v.Results[i], budget); !ok {
 				return dst[:start], unsupportedFloat(bad)
 			}
 		}
@@ -102,7 +119,7 @@ func appendPredictionJSON(dst []byte, v *oapi.PredictionResponse) ([]byte, error
 
 // appendPredictionResult appends one result; on a NaN or infinity it returns
 // false and the offending number.
-func appendPredictionResult(b []byte, r *oapi.PredictionResult) ([]byte, float64, bool) {
+func appendPredictionResult(b []byte, r *oapi.PredictionResult, budget []byte) ([]byte, float64, bool) {
 	ok := true
 	b = append(b, `{"concentration":`...)
 	if b, ok = appendJSONFloatPtr(b, r.Concentration); !ok {
@@ -152,6 +169,9 @@ func appendPredictionResult(b []byte, r *oapi.PredictionResult) ([]byte, float64
 		if b, bad, ok = appendBudgetJSON(b, r.Uncertainty); !ok {
 			return b, bad, false
 		}
+	} else if len(budget) > 0 {
+		b = append(b, `,"uncertainty":`...)
+		b = append(b, budget...)
 	}
 	b = append(b, '}')
 	return b, 0, true
@@ -312,14 +332,58 @@ var predictionBufs = sync.Pool{New: func() any {
 const maxPooledPredictionBuf = 256 << 10
 
 // predictionJSONResponse is the 200 response of both prediction routes,
-// written by appendPredictionJSON. Headers and status are those of the
+// written by appendPredictionAnswer. Headers and status are those of the
 // generated oapi.CreatePredictions200JSONResponse; as there, nothing is
 // written when the value cannot be encoded.
-type predictionJSONResponse oapi.PredictionResponse
+type predictionJSONResponse struct {
+	oapi.PredictionResponse
+	// budgetJSON holds, as JSON, the budgets a plan computed (predict with
+	// direct): result i's ends at budgetEnd[i] and starts where result
+	// i − 1's ends; empty when the result states none. budgetBuf is the
+	// pooled buffer it lives in; budgetErr the first budget that could not
+	// be encoded.
+	budgetJSON []byte
+	budgetEnd  []int
+	budgetBuf  *[]byte
+	budgetErr  error
+	memo       floatMemo
+}
+
+// addBudget computes the plan's budget of the next result, predicted as pr
+// from responses, and appends its JSON (f is reused from sample to sample).
+func (r *predictionJSONResponse) addBudget(c *lab.Curve, bp *budgetPlan, pr calib.Prediction, responses []float64, f *lab.BudgetFigures) error {
+	ok, err := bp.fast.Compute(c.Report, pr, responses, pr.Dilution, f)
+	if err != nil {
+		return err
+	}
+	if ok && r.budgetErr == nil {
+		b, bad, fine := appendPlannedBudgetJSON(r.budgetJSON, bp.fast, bp.json, f, &r.memo)
+		if fine {
+			r.budgetJSON = b
+		} else {
+			r.budgetErr = unsupportedFloat(bad)
+		}
+	}
+	r.budgetEnd = append(r.budgetEnd, len(r.budgetJSON))
+	return nil
+}
+
+// release returns the budgets' buffer to the pool.
+func (r *predictionJSONResponse) release() {
+	if r.budgetBuf != nil && cap(r.budgetJSON) <= maxPooledPredictionBuf {
+		*r.budgetBuf = r.budgetJSON[:0]
+		predictionBufs.Put(r.budgetBuf)
+	}
+	r.budgetBuf, r.budgetJSON = nil, nil
+}
 
 func (r *predictionJSONResponse) write(w http.ResponseWriter) error {
+	defer r.release()
+	if r.budgetErr != nil {
+		return r.budgetErr
+	}
 	bp := predictionBufs.Get().(*[]byte)
-	b, err := appendPredictionJSON((*bp)[:0], (*oapi.PredictionResponse)(r))
+	b, err := appendPredictionAnswer((*bp)[:0], &r.PredictionResponse, r.budgetJSON, r.budgetEnd)
 	if err != nil {
 		predictionBufs.Put(bp)
 		return err

@@ -5,9 +5,13 @@ package api
 // the route more than the budget's computation.
 
 import (
+	"math"
+	"slices"
 	"strconv"
 
 	"curvekeeper/api/oapi"
+	"curvekeeper/calib"
+	"curvekeeper/lab"
 )
 
 // As in predict_json.go, these conversions stop the build when a
@@ -91,6 +95,8 @@ type jsonOut struct {
 }
 
 func (o *jsonOut) key(k string) { o.b = append(o.b, k...) }
+
+func (o *jsonOut) raw(k []byte) { o.b = append(o.b, k...) }
 
 func (o *jsonOut) float(k string, f float64) {
 	if !o.ok {
@@ -227,4 +233,151 @@ func appendBudgetJSON(b []byte, u *oapi.UncertaintyBudget) ([]byte, float64, boo
 	o.str(`,"value_text":`, u.ValueText)
 	o.key(`}`)
 	return o.b, o.bad, o.ok
+}
+
+// budgetJSONPlan holds the JSON of the parts of a curve's budgets that do
+// not depend on the sample, for appendPlannedBudgetJSON.
+type budgetJSONPlan struct {
+	unit []byte // `,"unit":"…","value":`
+	// Per outcome (calib.Outcomes): the conformity from "lower" to the
+	// statement's opening `Result `, and from the statement's middle to
+	// the end of the conformity.
+	outcomeHead, outcomeTail [len(calib.Outcomes)][]byte
+}
+
+// newBudgetJSONPlan encodes the sample-independent parts of p's budgets;
+// false when a limit cannot be encoded.
+func newBudgetJSONPlan(p *lab.BudgetPlan) (*budgetJSONPlan, bool) {
+	j := &budgetJSONPlan{}
+	j.unit = appendJSONString(append(j.unit, `,"unit":`...), p.Context.Unit)
+	j.unit = append(j.unit, `,"value":`...)
+	if !p.HasLimits {
+		return j, true
+	}
+	l := p.Context.Spec.Limits
+	for k, outcome := range calib.Outcomes {
+		o := &jsonOut{ok: true}
+		o.floatPtr(`,"lower":`, l.Lower)
+		o.str(`,"outcome":`, outcome)
+		o.str(`,"risk":`, p.Rule.Risk(outcome))
+		o.str(`,"rule":`, l.Rule)
+		o.key(`,"statement":"Result `)
+		j.outcomeHead[k] = o.b
+		// The statement's middle and end as one JSON string, less its
+		// opening quote: escaping is character by character, so the pieces
+		// escaped apart are the whole escaped.
+		tail := appendJSONString(nil, p.StatementMiddle+outcome+".")[1:]
+		o = &jsonOut{b: tail, ok: true}
+		o.str(`,"unit":`, p.Context.Unit)
+		o.floatPtr(`,"upper":`, l.Upper)
+		o.key(`}`)
+		j.outcomeTail[k] = o.b
+		if !o.ok {
+			return nil, false
+		}
+	}
+	return j, true
+}
+
+// appendPlannedBudgetJSON appends the budget f computed by p as
+// appendBudgetJSON appends budgetOut(p.Record(f)), without the record: the
+// sample-independent parts come encoded from j. On a NaN or infinity it
+// returns false and the offending number.
+func appendPlannedBudgetJSON(b []byte, p *lab.BudgetPlan, j *budgetJSONPlan, f *lab.BudgetFigures, m *floatMemo) ([]byte, float64, bool) {
+	o := &jsonOut{b: b, ok: true}
+	// The numbers that recur from sample to sample (the level, k and the
+	// terms' ν) are formatted once per request.
+	memo := func(k string, slot int, v float64) {
+		if !o.ok {
+			return
+		}
+		o.key(k)
+		if slot < len(m.text) && m.set[slot] && m.bits[slot] == math.Float64bits(v) {
+			o.b = append(o.b, m.text[slot]...)
+			return
+		}
+		start := len(o.b)
+		if o.b, o.ok = appendJSONFloat(o.b, v); !o.ok {
+			o.bad = v
+			return
+		}
+		if slot < len(m.text) {
+			m.bits[slot], m.set[slot] = math.Float64bits(v), true
+			m.text[slot] = append(m.text[slot][:0], o.b[start:]...)
+		}
+	}
+	o.float(`{"approach":"bottom_up","combined":`, f.Combined)
+	if f.HasConformity {
+		c := &f.Conformity
+		k := slices.Index(calib.Outcomes[:], c.Outcome)
+		if k < 0 {
+			return o.b, math.NaN(), false
+		}
+		o.floatPtr(`,"conformity":{"accept_high":`, finitePtr(&c.AcceptHigh))
+		o.floatPtr(`,"accept_low":`, finitePtr(&c.AcceptLow))
+		o.boolean(`,"accepted":`, c.Accepted)
+		o.raw(j.outcomeHead[k])
+		o.b = f.AppendValueText(o.b)
+		o.key(" ± ")
+		o.b = f.AppendExpandedText(o.b)
+		o.raw(j.outcomeTail[k])
+	}
+	o.str(`,"coverage":`, string(f.Coverage))
+	memo(`,"coverage_factor":`, 0, f.CoverageFactor)
+	o.floatPtr(`,"effective_df":`, finitePtr(&f.EffectiveDF))
+	o.float(`,"expanded":`, f.Expanded)
+	o.key(`,"expanded_text":"`)
+	o.b = append(f.AppendExpandedText(o.b), '"')
+	memo(`,"level":`, 1, f.Level)
+	o.key(`,"notes":[`)
+	for i, n := range f.Notes {
+		if i > 0 {
+			o.key(",")
+		}
+		o.b = appendJSONString(o.b, n)
+	}
+	o.floatPtr(`],"relative_combined":`, finitePtr(&f.RelativeCombined))
+	o.key(`,"terms":[`)
+	for i := range f.Terms {
+		t := &f.Terms[i]
+		if i > 0 {
+			o.key(",")
+		}
+		o.float(`{"contribution":`, t.Contribution)
+		if calib.Finite(t.DF) {
+			memo(`,"df":`, 2+i, t.DF)
+		} else {
+			o.key(`,"df":null`)
+		}
+		if t.Group != "" {
+			o.str(`,"group":`, t.Group)
+		}
+		o.str(`,"name":`, t.Name)
+		o.float(`,"share":`, t.Share)
+		o.str(`,"source":`, string(t.Source))
+		o.key("}")
+	}
+	o.key("]")
+	o.raw(j.unit)
+	o.float("", f.Value)
+	o.key(`,"value_text":"`)
+	o.b = append(f.AppendValueText(o.b), '"', '}')
+	return o.b, o.bad, o.ok
+}
+
+// floatMemo keeps, for one request's budgets, the JSON of the last number
+// written in each of a few places (k, the level, the first terms' ν).
+type floatMemo struct {
+	bits [10]uint64
+	set  [10]bool
+	text [10][]byte
+}
+
+// finitePtr is f, or nil when *f is not finite (as the record's optional
+// numbers).
+func finitePtr(f *float64) *float64 {
+	if !calib.Finite(*f) {
+		return nil
+	}
+	return f
 }

@@ -310,7 +310,7 @@ func TestPredictionJSONUnsupportedNumbers(t *testing.T) {
 			checkSameAsEncodingJSON(t, v)
 
 			rec := httptest.NewRecorder()
-			if err := (*predictionJSONResponse)(v).VisitCreatePredictionsResponse(rec); err == nil {
+			if err := (&predictionJSONResponse{PredictionResponse: *v}).VisitCreatePredictionsResponse(rec); err == nil {
 				t.Fatalf("Visit accepted %v in member %d", bad, member)
 			}
 			if rec.Body.Len() != 0 || rec.Header().Get("Content-Type") != "" || rec.Code != http.StatusOK {
@@ -340,11 +340,11 @@ func TestPredictionJSONResponse(t *testing.T) {
 			t.Fatal(err)
 		}
 		got := httptest.NewRecorder()
-		if err := (*predictionJSONResponse)(v).VisitCreatePredictionsResponse(got); err != nil {
+		if err := (&predictionJSONResponse{PredictionResponse: *v}).VisitCreatePredictionsResponse(got); err != nil {
 			t.Fatal(err)
 		}
 		gotQC := httptest.NewRecorder()
-		if err := (*predictionJSONResponse)(v).VisitCreateInstrumentPredictionsResponse(gotQC); err != nil {
+		if err := (&predictionJSONResponse{PredictionResponse: *v}).VisitCreateInstrumentPredictionsResponse(gotQC); err != nil {
 			t.Fatal(err)
 		}
 		for _, c := range []struct{ got, want *httptest.ResponseRecorder }{{got, want}, {gotQC, wantQC}} {

@@ -77,6 +77,17 @@ type Conformity struct {
 // Preconditions: result finite, U finite and ≥ 0, at least one finite
 // limit, lower ≤ upper when both are given.
 func Decide(result, u float64, spec Specification, rule DecisionRule) (Conformity, error) {
+	c, err := Judge(result, u, spec, rule)
+	if err != nil {
+		return Conformity{}, err
+	}
+	c.Cautions = Cautions()
+	return c, nil
+}
+
+// Judge is Decide without the cautions (Cautions is nil), and allocates
+// nothing: for a caller that states the cautions once beside many results.
+func Judge(result, u float64, spec Specification, rule DecisionRule) (Conformity, error) {
 	if math.IsNaN(result) || math.IsInf(result, 0) {
 		return Conformity{}, inputErr("result", "not a finite number")
 	}
@@ -101,7 +112,7 @@ func Decide(result, u float64, spec Specification, rule DecisionRule) (Conformit
 		return Conformity{}, inputErr("rule", "unknown decision rule %q", rule)
 	}
 	c := Conformity{Rule: rule, Spec: spec, Result: result, Expanded: u,
-		AcceptLow: math.Inf(-1), AcceptHigh: math.Inf(1), Cautions: Cautions()}
+		AcceptLow: math.Inf(-1), AcceptHigh: math.Inf(1)}
 	w := 0.0
 	if rule == RuleGuardBand {
 		w = u
@@ -115,7 +126,7 @@ func Decide(result, u float64, spec Specification, rule DecisionRule) (Conformit
 		c.AcceptLow = spec.Lower + w
 		rank = max(rank, sideRank(spec.Lower-result, w))
 	}
-	c.Outcome = [...]string{OutcomePass, OutcomeConditionalPass, OutcomeConditionalFail, OutcomeFail}[rank]
+	c.Outcome = Outcomes[rank]
 	c.Accepted = rank == 0
 	c.Risk = riskWording(rule, rank)
 	return c, nil
@@ -135,6 +146,20 @@ func sideRank(d, w float64) int {
 	default:
 		return 3
 	}
+}
+
+// Outcomes lists the outcomes of a conformity statement, from best to worst.
+var Outcomes = [...]string{OutcomePass, OutcomeConditionalPass, OutcomeConditionalFail, OutcomeFail}
+
+// Risk returns the wording of the risk that Decide states for the outcome
+// (one of Outcomes) under the rule; "" for an unknown outcome.
+func (rule DecisionRule) Risk(outcome string) string {
+	for rank, o := range Outcomes {
+		if o == outcome {
+			return riskWording(rule, rank)
+		}
+	}
+	return ""
 }
 
 func riskWording(rule DecisionRule, rank int) string {

@@ -3,7 +3,6 @@ package lab
 import (
 	"context"
 	"encoding/json"
-	"fmt"
 	"math"
 	"slices"
 	"strconv"
@@ -323,7 +322,7 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 	if rec.Approach == "" {
 		rec.Approach = ApproachBottomUp
 	}
-	cal, err := rep.CalibrationTermOf("calibration: s(x̂0) from the curve", pr)
+	cal, err := rep.CalibrationTermOf(calibrationTermName, pr)
 	if err != nil || pr.Concentration == 0 {
 		return nil, nil // no single non-zero concentration: nothing to state U of (the flags say why)
 	}
@@ -334,40 +333,21 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 		switch t {
 		case TermStandards:
 			if bc.Standards == nil {
-				rec.Notes = append(rec.Notes, "The method asks for the standards' term, but the run named no standard material of this analyte: the term is left out.")
+				rec.Notes = append(rec.Notes, noteNoStandards)
 				continue
 			}
-			in.Terms = append(in.Terms, calib.UncertaintyTerm{Name: bc.Standards.Name, Source: calib.SourceStandard,
-				Kind: calib.DistNormal, Value: 1, StdUncertainty: bc.Standards.Relative, Group: bc.Standards.Group})
+			in.Terms = append(in.Terms, bc.Standards.term())
 		case TermPreparation:
-			for i, st := range spec.Preparation {
-				n := fmt.Sprintf("preparation step %d", i+1)
-				in.Terms = append(in.Terms,
-					calib.RectangularTerm(n+" aliquot", calib.SourcePreparation, 1, st.AliquotTolML/st.AliquotML),
-					calib.RectangularTerm(n+" final volume", calib.SourcePreparation, 1, st.FinalTolML/st.FinalML))
-			}
+			in.Terms = appendPreparationTerms(in.Terms, spec.Preparation)
 		case TermRepeatability:
-			if len(responses) < 2 {
-				rec.Notes = append(rec.Notes, "The method asks for the repeatability term, but the sample has one reading: the term is left out.")
-				continue
-			}
-			xs := make([]float64, 0, len(responses))
-			for _, y := range responses {
-				p, err := rep.Predict([]float64{y}, dilution, 0)
-				if err != nil || !p.HasEstimate() {
-					break
-				}
-				xs = append(xs, p.Concentration)
-			}
-			rt, err := calib.RepeatabilityFactor("repeatability of the sample's readings", xs)
-			if len(xs) < len(responses) || err != nil {
-				rec.Notes = append(rec.Notes, "A single reading of the sample gives no concentration: the repeatability term is left out.")
+			rt, note := repeatabilityTerm(rep, responses, dilution)
+			if note != "" {
+				rec.Notes = append(rec.Notes, note)
 				continue
 			}
 			in.Terms = append(in.Terms, rt)
 		case TermRecovery:
-			r := spec.Recovery
-			in.Terms = append(in.Terms, calib.RecoveryTerm("recovery (uncorrected)", r.Mean, r.StdUncertainty, r.DF, false))
+			in.Terms = append(in.Terms, spec.Recovery.term())
 		}
 	}
 	b, err := calib.ComputeBudget(in)
@@ -375,21 +355,7 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 		return nil, nil // e.g. a negative x̂0 with a factor model: the result states no budget
 	}
 	rec.fill(b)
-	// The terms' optional numbers point into one array, not one allocation each.
-	nums := make([]float64, 2*len(b.Terms))
-	ptr := func(k int, v float64) *float64 {
-		if !calib.Finite(v) {
-			return nil
-		}
-		nums[k] = v
-		return &nums[k]
-	}
-	rec.Terms = make([]BudgetTermOut, len(b.Terms))
-	for i, t := range b.Terms {
-		rec.Terms[i] = BudgetTermOut{Name: t.Name, Source: string(t.Source), Distribution: string(t.Kind),
-			Value: t.Value, StdUncertainty: t.StdUncertainty, Relative: ptr(2*i, t.Relative), Coefficient: t.Coefficient,
-			Contribution: t.Contribution, Share: t.Share, DF: ptr(2*i+1, t.DF), Group: t.Group}
-	}
+	rec.Terms = termsOut(b.Terms)
 	if bc.MonteCarlo != nil {
 		if err := rec.addMonteCarlo(in, &b, *bc.MonteCarlo); err != nil {
 			return nil, err
@@ -408,22 +374,107 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 		}
 	}
 	if l := spec.Limits; l != nil {
-		s := calib.Specification{Unit: bc.Unit}
-		if l.Lower != nil {
-			s.Lower, s.HasLower = *l.Lower, true
-		}
-		if l.Upper != nil {
-			s.Upper, s.HasUpper = *l.Upper, true
-		}
+		s := l.specification(bc.Unit)
 		c, err := calib.Decide(rec.Value, rec.Expanded, s, calib.DecisionRule(l.Rule))
 		if err != nil {
 			return nil, err
 		}
-		rec.Conformity = &ConformityOut{Rule: l.Rule, Lower: l.Lower, Upper: l.Upper, Unit: bc.Unit,
-			AcceptLow: finiteOrNil(c.AcceptLow), AcceptHigh: finiteOrNil(c.AcceptHigh), Outcome: c.Outcome,
-			Accepted: c.Accepted, Risk: c.Risk, Statement: ConformityStatement(c, rec.ValueText, rec.ExpandedText)}
+		rec.Conformity = conformityOut(l, bc.Unit, c, rec.ValueText, rec.ExpandedText)
 	}
 	return rec, nil
+}
+
+const (
+	calibrationTermName   = "calibration: s(x̂0) from the curve"
+	repeatabilityTermName = "repeatability of the sample's readings"
+	noteNoStandards       = "The method asks for the standards' term, but the run named no standard material of this analyte: the term is left out."
+	noteOneReading        = "The method asks for the repeatability term, but the sample has one reading: the term is left out."
+	noteNoReadingEstimate = "A single reading of the sample gives no concentration: the repeatability term is left out."
+)
+
+// term is the standards' term of a budget: a factor 1 with the materials'
+// relative u, normal, in the stock's correlation group.
+func (st *StandardsTerm) term() calib.UncertaintyTerm {
+	return calib.UncertaintyTerm{Name: st.Name, Source: calib.SourceStandard, Kind: calib.DistNormal, Value: 1,
+		StdUncertainty: st.Relative, Group: st.Group}
+}
+
+// appendPreparationTerms appends the terms of the method's preparation
+// steps: each volume a factor 1 with the rectangular relative u a/(√3·V).
+func appendPreparationTerms(dst []calib.UncertaintyTerm, steps []PrepStep) []calib.UncertaintyTerm {
+	for i, st := range steps {
+		n := "preparation step " + strconv.Itoa(i+1)
+		dst = append(dst,
+			calib.RectangularTerm(n+" aliquot", calib.SourcePreparation, 1, st.AliquotTolML/st.AliquotML),
+			calib.RectangularTerm(n+" final volume", calib.SourcePreparation, 1, st.FinalTolML/st.FinalML))
+	}
+	return dst
+}
+
+// repeatabilityTerm is the repeatability term of the readings, each
+// inverted on its own; or, when there is none, the note that says why.
+func repeatabilityTerm(rep *calib.Report, responses []float64, dilution float64) (calib.UncertaintyTerm, string) {
+	if len(responses) < 2 {
+		return calib.UncertaintyTerm{}, noteOneReading
+	}
+	xs := make([]float64, 0, len(responses))
+	for _, y := range responses {
+		p, err := rep.Predict([]float64{y}, dilution, 0)
+		if err != nil || !p.HasEstimate() {
+			break
+		}
+		xs = append(xs, p.Concentration)
+	}
+	rt, err := calib.RepeatabilityFactor(repeatabilityTermName, xs)
+	if len(xs) < len(responses) || err != nil {
+		return calib.UncertaintyTerm{}, noteNoReadingEstimate
+	}
+	return rt, ""
+}
+
+// term is the recovery term of a result not corrected for recovery.
+func (r *RecoverySpec) term() calib.UncertaintyTerm {
+	return calib.RecoveryTerm("recovery (uncorrected)", r.Mean, r.StdUncertainty, r.DF, false)
+}
+
+// specification is the calib form of the limits, in unit.
+func (l *SpecLimits) specification(unit string) calib.Specification {
+	s := calib.Specification{Unit: unit}
+	if l.Lower != nil {
+		s.Lower, s.HasLower = *l.Lower, true
+	}
+	if l.Upper != nil {
+		s.Upper, s.HasUpper = *l.Upper, true
+	}
+	return s
+}
+
+// termsOut returns the record's form of a budget's terms.
+func termsOut(ts []calib.TermResult) []BudgetTermOut {
+	// The terms' optional numbers point into one array, not one allocation each.
+	nums := make([]float64, 2*len(ts))
+	ptr := func(k int, v float64) *float64 {
+		if !calib.Finite(v) {
+			return nil
+		}
+		nums[k] = v
+		return &nums[k]
+	}
+	out := make([]BudgetTermOut, len(ts))
+	for i, t := range ts {
+		out[i] = BudgetTermOut{Name: t.Name, Source: string(t.Source), Distribution: string(t.Kind),
+			Value: t.Value, StdUncertainty: t.StdUncertainty, Relative: ptr(2*i, t.Relative), Coefficient: t.Coefficient,
+			Contribution: t.Contribution, Share: t.Share, DF: ptr(2*i+1, t.DF), Group: t.Group}
+	}
+	return out
+}
+
+// conformityOut returns the record's form of the conformity c with the
+// limits l in unit, of the result and U as texts.
+func conformityOut(l *SpecLimits, unit string, c calib.Conformity, value, expanded string) *ConformityOut {
+	return &ConformityOut{Rule: l.Rule, Lower: l.Lower, Upper: l.Upper, Unit: unit,
+		AcceptLow: finiteOrNil(c.AcceptLow), AcceptHigh: finiteOrNil(c.AcceptHigh), Outcome: c.Outcome,
+		Accepted: c.Accepted, Risk: c.Risk, Statement: ConformityStatement(c, value, expanded)}
 }
 
 // fill sets the record's reported figures from b.
@@ -437,19 +488,24 @@ func (r *BudgetRecord) fill(b calib.Budget) {
 // ConformityStatement words a conformity statement: the result with its U,
 // the limits, the rule and the outcome (the risk is worded apart, in Risk).
 func ConformityStatement(c calib.Conformity, value, expanded string) string {
+	return "Result " + value + " ± " + expanded + StatementMiddle(c.Spec, c.Rule) + c.Outcome + "."
+}
+
+// StatementMiddle is the part of a conformity statement between U and the
+// outcome: the unit, the limits and the rule.
+func StatementMiddle(spec calib.Specification, rule calib.DecisionRule) string {
 	lim := make([]string, 0, 2)
-	if c.Spec.HasLower {
-		lim = append(lim, "lower limit "+strconv.FormatFloat(c.Spec.Lower, 'g', -1, 64)+" "+c.Spec.Unit)
+	if spec.HasLower {
+		lim = append(lim, "lower limit "+strconv.FormatFloat(spec.Lower, 'g', -1, 64)+" "+spec.Unit)
 	}
-	if c.Spec.HasUpper {
-		lim = append(lim, "upper limit "+strconv.FormatFloat(c.Spec.Upper, 'g', -1, 64)+" "+c.Spec.Unit)
+	if spec.HasUpper {
+		lim = append(lim, "upper limit "+strconv.FormatFloat(spec.Upper, 'g', -1, 64)+" "+spec.Unit)
 	}
-	rule := "simple acceptance"
-	if c.Rule == calib.RuleGuardBand {
-		rule = "guard band w = U"
+	r := "simple acceptance"
+	if rule == calib.RuleGuardBand {
+		r = "guard band w = U"
 	}
-	return "Result " + value + " ± " + expanded + " " + c.Spec.Unit + " against the " + strings.Join(lim, " and ") +
-		" under " + rule + ": " + c.Outcome + "."
+	return " " + spec.Unit + " against the " + strings.Join(lim, " and ") + " under " + r + ": "
 }
 
 // addMonteCarlo adds the Monte Carlo check (JCGM 101) of the bottom-up
