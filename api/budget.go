@@ -63,7 +63,7 @@ func predictionBudget(c *lab.Curve, bp *budgetPlan, pr calib.Prediction, respons
 	if bc.Spec == nil {
 		return nil, nil
 	}
-	if mc == nil && bp.fast != nil {
+	if mc == nil && bp.fast != nil && bp.fast.Covers(c.Report, pr) {
 		ok, err := bp.fast.Compute(c.Report, pr, responses, dilution, f)
 		if err != nil || !ok {
 			return nil, err
@@ -115,6 +115,18 @@ func budgetOut(rec *lab.BudgetRecord) *oapi.UncertaintyBudget {
 		out.MonteCarlo = &oapi.MonteCarloCheck{Agrees: m.Agrees, Discarded: m.Discarded, Draws: m.Draws, GumHigh: m.GUMHigh,
 			GumLow: m.GUMLow, High: m.High, Level: m.Level, Low: m.Low, Mean: m.Mean, Sd: m.SD, Seed: int64(m.Seed),
 			ShortHigh: m.ShortHigh, ShortLow: m.ShortLow, Tolerance: m.Tolerance}
+		if m.Trigger != "" {
+			tr := oapi.MonteCarloTrigger(m.Trigger)
+			out.MonteCarlo.Trigger = &tr
+		}
+		if m.Screen != "" {
+			sc := m.Screen
+			out.MonteCarlo.Screen = &sc
+		}
+	}
+	if ri := rec.ReportedInterval; ri != nil {
+		out.ReportedInterval = &oapi.ReportedInterval{High: ri.High, HighText: ri.HighText, Level: ri.Level, Low: ri.Low,
+			LowText: ri.LowText, Method: oapi.ReportedIntervalMethod(ri.Method), Reason: ri.Reason}
 	}
 	return out
 }

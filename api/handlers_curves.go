@@ -150,10 +150,14 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		res := predictionOut(string(samples[i].ID), pr)
 		switch {
 		case bp.bc.Spec == nil || budgetErr != nil:
-		case direct:
+		case direct && bp.fast.Covers(r, pr):
 			budgetErr = out.addBudget(c, bp, pr, samples[i].Responses, &f)
 		default:
+			// Monte Carlo, asked for or screened, or no plan: the record.
 			res.Uncertainty, budgetErr = predictionBudget(c, bp, pr, samples[i].Responses, pr.Dilution, mc, &f)
+			if direct {
+				out.budgetEnd = append(out.budgetEnd, len(out.budgetJSON))
+			}
 		}
 		out.Results = append(out.Results, res)
 	})

@@ -31,6 +31,7 @@ var (
 		MonteCarlo       *oapi.MonteCarloCheck
 		Notes            []string
 		RelativeCombined *float64
+		ReportedInterval *oapi.ReportedInterval
 		Terms            []oapi.BudgetTerm
 		TopDown          *oapi.TopDownEstimate
 		Unit             string
@@ -78,12 +79,23 @@ var (
 		Level     float64
 		Low       float64
 		Mean      float64
+		Screen    *string
 		Sd        float64
 		Seed      int64
 		ShortHigh float64
 		ShortLow  float64
 		Tolerance float64
+		Trigger   *oapi.MonteCarloTrigger
 	}(oapi.MonteCarloCheck{})
+	_ = struct {
+		High     float64
+		HighText string
+		Level    float64
+		Low      float64
+		LowText  string
+		Method   oapi.ReportedIntervalMethod
+		Reason   string
+	}(oapi.ReportedInterval{})
 )
 
 // jsonOut appends members in order; the first NaN or infinity stops it
@@ -172,16 +184,32 @@ func appendBudgetJSON(b []byte, u *oapi.UncertaintyBudget) ([]byte, float64, boo
 		o.float(`,"level":`, m.Level)
 		o.float(`,"low":`, m.Low)
 		o.float(`,"mean":`, m.Mean)
+		if m.Screen != nil {
+			o.str(`,"screen":`, *m.Screen)
+		}
 		o.float(`,"sd":`, m.Sd)
 		o.integer(`,"seed":`, m.Seed)
 		o.float(`,"short_high":`, m.ShortHigh)
 		o.float(`,"short_low":`, m.ShortLow)
 		o.float(`,"tolerance":`, m.Tolerance)
+		if m.Trigger != nil {
+			o.str(`,"trigger":`, string(*m.Trigger))
+		}
 		o.key(`}`)
 	}
 	o.key(`,"notes":`)
 	o.b = appendJSONStrings(o.b, u.Notes)
 	o.floatPtr(`,"relative_combined":`, u.RelativeCombined)
+	if ri := u.ReportedInterval; ri != nil {
+		o.float(`,"reported_interval":{"high":`, ri.High)
+		o.str(`,"high_text":`, ri.HighText)
+		o.float(`,"level":`, ri.Level)
+		o.float(`,"low":`, ri.Low)
+		o.str(`,"low_text":`, ri.LowText)
+		o.str(`,"method":`, string(ri.Method))
+		o.str(`,"reason":`, ri.Reason)
+		o.key(`}`)
+	}
 	o.key(`,"terms":`)
 	if u.Terms == nil {
 		o.key("null")

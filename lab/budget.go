@@ -49,6 +49,10 @@ type UncertaintySpec struct {
 	// Approach is ApproachBottomUp (the default), ApproachTopDown or
 	// ApproachLarger; the last two need TopDownRelative.
 	Approach string `json:"approach,omitempty"`
+	// MonteCarlo is MonteCarloAuto (the default: a Monte Carlo check runs
+	// by itself where ScreenGUM puts the GUM framework in doubt) or
+	// MonteCarloOnRequest (only when a prediction asks for it).
+	MonteCarlo string `json:"monte_carlo,omitempty"`
 	// TopDownRelative is the relative standard uncertainty u_c/|y| of the
 	// lab's top-down estimate (calib.ComputeTopDown: within-lab
 	// reproducibility and bias, ISO 11352), used with k = 2.
@@ -118,6 +122,9 @@ func checkUncertaintySpec(p string, u *UncertaintySpec) error {
 	}
 	if u.Coverage != "" && u.Coverage != string(calib.CoverageStudentT) && u.Coverage != string(calib.CoverageK2) {
 		return FieldError(p+"/coverage", "coverage is student_t or k2")
+	}
+	if u.MonteCarlo != "" && u.MonteCarlo != MonteCarloAuto && u.MonteCarlo != MonteCarloOnRequest {
+		return FieldError(p+"/monte_carlo", "monte_carlo is %s or %s", MonteCarloAuto, MonteCarloOnRequest)
 	}
 	switch u.Approach {
 	case "", ApproachBottomUp:
@@ -198,6 +205,9 @@ type BudgetContext struct {
 type MCRequest struct {
 	Draws int // 0: calib's default (at least 10⁵)
 	Seed  uint64
+	// Screen is why the check runs by itself (ScreenGUM's reason); empty
+	// when a request asked for it.
+	Screen string
 }
 
 // BudgetRecord is a result's uncertainty budget and conformity statement as
@@ -218,9 +228,12 @@ type BudgetRecord struct {
 	Terms            []BudgetTermOut `json:"terms"`
 	TopDown          *TopDownOut     `json:"top_down,omitempty"`
 	MonteCarlo       *MonteCarloOut  `json:"monte_carlo,omitempty"`
-	Conformity       *ConformityOut  `json:"conformity,omitempty"`
-	Notes            []string        `json:"notes"`
-	Cautions         []string        `json:"cautions"`
+	// ReportedInterval, set when a Monte Carlo check ran, says which
+	// coverage interval the result reports (absent: y ± U).
+	ReportedInterval *ReportedIntervalOut `json:"reported_interval,omitempty"`
+	Conformity       *ConformityOut       `json:"conformity,omitempty"`
+	Notes            []string             `json:"notes"`
+	Cautions         []string             `json:"cautions"`
 }
 
 // BudgetTermOut is one term of a budget with its share of u_c².
@@ -262,6 +275,10 @@ type MonteCarloOut struct {
 	GUMHigh   float64 `json:"gum_high"`
 	Tolerance float64 `json:"tolerance"`
 	Agrees    bool    `json:"agrees"`
+	// Trigger is MCTriggerRequested or MCTriggerScreened; Screen the
+	// screen's reason for the latter.
+	Trigger string `json:"trigger,omitempty"`
+	Screen  string `json:"screen,omitempty"`
 }
 
 // ConformityOut is the statement of conformity of a result.
@@ -356,8 +373,12 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 	}
 	rec.fill(b)
 	rec.Terms = termsOut(b.Terms)
-	if bc.MonteCarlo != nil {
-		if err := rec.addMonteCarlo(in, &b, *bc.MonteCarlo); err != nil {
+	mc := bc.MonteCarlo
+	if mc == nil {
+		mc = autoMonteCarlo(rep, pr, responses, dilution, spec)
+	}
+	if mc != nil {
+		if err := rec.addMonteCarlo(in, &b, *mc); err != nil {
 			return nil, err
 		}
 	}
@@ -370,16 +391,26 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 		rec.TopDown = &TopDownOut{Relative: spec.TopDownRelative, Combined: td.Combined, Expanded: td.Expanded, ExpandedText: td.ExpandedText}
 		if rec.Approach == ApproachTopDown || td.ExpandedExact > b.ExpandedExact {
 			rec.fill(td)
+			rec.ReportedInterval = nil
 			rec.Notes = append(rec.Notes, "U is the top-down estimate (k = 2); the bottom-up terms are shown for reference.")
 		}
 	}
 	if l := spec.Limits; l != nil {
 		s := l.specification(bc.Unit)
-		c, err := calib.Decide(rec.Value, rec.Expanded, s, calib.DecisionRule(l.Rule))
-		if err != nil {
-			return nil, err
+		if ri := rec.ReportedInterval; ri != nil && ri.Method == ReportedMonteCarlo {
+			c, err := calib.DecideInterval(rec.Value, ri.Low, ri.High, s, calib.DecisionRule(l.Rule))
+			if err != nil {
+				return nil, err
+			}
+			rec.Conformity = conformityOut(l, bc.Unit, c, rec.ValueText, rec.ExpandedText)
+			rec.Conformity.Statement = IntervalStatement(c, rec.ValueText, ri)
+		} else {
+			c, err := calib.Decide(rec.Value, rec.Expanded, s, calib.DecisionRule(l.Rule))
+			if err != nil {
+				return nil, err
+			}
+			rec.Conformity = conformityOut(l, bc.Unit, c, rec.ValueText, rec.ExpandedText)
 		}
-		rec.Conformity = conformityOut(l, bc.Unit, c, rec.ValueText, rec.ExpandedText)
 	}
 	return rec, nil
 }
@@ -517,13 +548,17 @@ func (r *BudgetRecord) addMonteCarlo(in calib.BudgetInput, b *calib.Budget, req 
 		return err
 	}
 	out := &MonteCarloOut{Draws: mc.Draws, Discarded: mc.Discarded, Seed: mc.Seed, Level: mc.Level, Mean: mc.Mean, SD: mc.SD,
-		Low: mc.Low, High: mc.High, ShortLow: mc.ShortLow, ShortHigh: mc.ShortHigh}
+		Low: mc.Low, High: mc.High, ShortLow: mc.ShortLow, ShortHigh: mc.ShortHigh, Trigger: MCTriggerRequested}
+	if req.Screen != "" {
+		out.Trigger, out.Screen = MCTriggerScreened, req.Screen
+	}
 	if chk, err := calib.CompareGUMMC(*b, mc, 2); err == nil {
 		out.GUMLow, out.GUMHigh, out.Tolerance, out.Agrees = chk.GUMLow, chk.GUMHigh, chk.Delta, chk.Agree
 	}
 	r.MonteCarlo = out
+	r.ReportedInterval = reportedInterval(out, b)
 	if !out.Agrees {
-		r.Notes = append(r.Notes, "The Monte Carlo interval and y ± U differ by more than the numerical tolerance: the Monte Carlo interval is the better statement here (JCGM 101 §8.2).")
+		r.Notes = append(r.Notes, "The Monte Carlo interval and y ± U differ by more than the numerical tolerance: the Monte Carlo interval is the better statement here and is the one reported (JCGM 101 §8.2); y ± U is kept beside it.")
 	}
 	return nil
 }

@@ -25,6 +25,7 @@ type BudgetPlan struct {
 	StatementMiddle string
 	steps           []planStep
 	maxTerms        int
+	screens         bool // the spec runs Monte Carlo by itself where the GUM is in doubt
 }
 
 // planStep is one term of the method's spec, after the calibration term:
@@ -44,7 +45,7 @@ func NewBudgetPlan(bc BudgetContext) *BudgetPlan {
 	if spec == nil || (spec.Approach != "" && spec.Approach != ApproachBottomUp) || bc.MonteCarlo != nil {
 		return nil
 	}
-	p := &BudgetPlan{Context: bc, maxTerms: 1}
+	p := &BudgetPlan{Context: bc, maxTerms: 1, screens: screensResults(spec)}
 	for _, t := range spec.Terms {
 		var st planStep
 		switch t {
@@ -86,10 +87,19 @@ type BudgetFigures struct {
 	in            []calib.UncertaintyTerm
 }
 
+// Covers reports whether Compute gives the budget of a result predicted
+// as pr: false when the spec runs a Monte Carlo check by itself for it
+// (calib.ScreenGUM puts the GUM framework in doubt), which ResultBudget
+// then makes. It allocates nothing.
+func (p *BudgetPlan) Covers(rep *calib.Report, pr calib.Prediction) bool {
+	return !p.screens || !rep.ScreenGUM(pr).InDoubt
+}
+
 // Compute computes into f the budget of a result predicted as pr from the
 // readings (responses, dilution) against the curve report rep, as
-// ResultBudget does; false when ResultBudget gives none. With f reused it
-// allocates nothing, unless the spec has the repeatability term.
+// ResultBudget does, for a result the plan Covers; false when ResultBudget
+// gives none. With f reused it allocates nothing, unless the spec has the
+// repeatability term.
 func (p *BudgetPlan) Compute(rep *calib.Report, pr calib.Prediction, responses []float64, dilution float64, f *BudgetFigures) (bool, error) {
 	cal, err := rep.GUMCalibrationTerm(calibrationTermName, pr)
 	if err != nil || pr.Concentration == 0 {

@@ -65,11 +65,13 @@ func budgetPlanSpecs() map[string]*lab.UncertaintySpec {
 // (present or missing), dilution and set of readings (one, two, three, and
 // readings off the curve), Compute gives a budget exactly when ResultBudget
 // does and Record returns the same record, number for number; one figures
-// value serves every sample, as on the prediction route.
+// value serves every sample, as on the prediction route. Results the GUM
+// screen puts in doubt are left to ResultBudget, which must then have run
+// its Monte Carlo check.
 func TestBudgetPlanMatchesResultBudget(t *testing.T) {
 	std := &lab.StandardsTerm{Code: "CRM-P", Stock: "STOCK-P", Relative: 0.004, Name: "standards: CRM-P", Group: "stock:STOCK-P"}
 	readings := [][]float64{{0.9}, {0.6, 0.62}, {1.2, 1.25, 1.18}, {0.05, 0.06}, {-0.5, -0.4}, {2.5, 9.0}, {0.3, 0.31, 0.29}}
-	compared, budgets := 0, 0
+	compared, budgets, screened := 0, 0, 0
 	for cn, rep := range budgetPlanCurves(t) {
 		for sn, spec := range budgetPlanSpecs() {
 			for _, st := range []*lab.StandardsTerm{std, nil} {
@@ -89,6 +91,13 @@ func TestBudgetPlanMatchesResultBudget(t *testing.T) {
 						want, err := lab.ResultBudget(rep, pr, ys, dil, bc)
 						if err != nil {
 							t.Fatalf("%s: reference: %v", name, err)
+						}
+						if !plan.Covers(rep, pr) {
+							screened++
+							if want != nil && (want.MonteCarlo == nil || want.MonteCarlo.Trigger != lab.MCTriggerScreened) {
+								t.Fatalf("%s: the plan leaves a screened result to ResultBudget, which ran no Monte Carlo check", name)
+							}
+							continue
 						}
 						ok, err := plan.Compute(rep, pr, ys, dil, &f)
 						if err != nil {
@@ -113,7 +122,7 @@ func TestBudgetPlanMatchesResultBudget(t *testing.T) {
 	if budgets < compared/2 {
 		t.Fatalf("only %d of %d cases gave a budget: the comparison is too thin", budgets, compared)
 	}
-	t.Logf("%d cases compared, %d with a budget", compared, budgets)
+	t.Logf("%d cases compared, %d with a budget; %d screened for Monte Carlo", compared, budgets, screened)
 }
 
 // TestBudgetPlanCovers checks which contexts get a plan: none without a
