@@ -134,12 +134,17 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		return nil, err
 	}
 	var budgetErr error
-	var f lab.BudgetFigures
 	direct = direct && bp.fast != nil && mc == nil
-	if direct {
+	var f *lab.BudgetFigures
+	switch {
+	case direct:
 		out.budgetEnd = make([]int, 0, len(samples))
 		out.budgetBuf = predictionBufs.Get().(*[]byte)
 		out.budgetJSON = (*out.budgetBuf)[:0]
+		f = budgetFigures.Get().(*lab.BudgetFigures)
+		out.pooledFigures = f
+	case bp.bc.Spec != nil:
+		f = new(lab.BudgetFigures)
 	}
 	err = lab.Predict(c, conf, len(samples), func(i int) ([]float64, float64) {
 		if d := samples[i].Dilution; d != nil {
@@ -151,10 +156,10 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		switch {
 		case bp.bc.Spec == nil || budgetErr != nil:
 		case direct && bp.fast.Covers(r, pr):
-			budgetErr = out.addBudget(c, bp, pr, samples[i].Responses, &f)
+			budgetErr = out.addBudget(c, bp, pr, samples[i].Responses, f)
 		default:
 			// Monte Carlo, asked for or screened, or no plan: the record.
-			res.Uncertainty, budgetErr = predictionBudget(c, bp, pr, samples[i].Responses, pr.Dilution, mc, &f)
+			res.Uncertainty, budgetErr = predictionBudget(c, bp, pr, samples[i].Responses, pr.Dilution, mc, f)
 			if direct {
 				out.budgetEnd = append(out.budgetEnd, len(out.budgetJSON))
 			}

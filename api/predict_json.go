@@ -347,7 +347,13 @@ type predictionJSONResponse struct {
 	budgetBuf  *[]byte
 	budgetErr  error
 	memo       floatMemo
+	// pooledFigures, from budgetFigures, holds the plan's figures of one
+	// sample after another on the direct path.
+	pooledFigures *lab.BudgetFigures
 }
+
+// budgetFigures keeps BudgetFigures, with their arrays, between requests.
+var budgetFigures = sync.Pool{New: func() any { return new(lab.BudgetFigures) }}
 
 // addBudget computes the plan's budget of the next result, predicted as pr
 // from responses, and appends its JSON (f is reused from sample to sample).
@@ -375,6 +381,10 @@ func (r *predictionJSONResponse) release() {
 		predictionBufs.Put(r.budgetBuf)
 	}
 	r.budgetBuf, r.budgetJSON = nil, nil
+	if r.pooledFigures != nil {
+		budgetFigures.Put(r.pooledFigures)
+		r.pooledFigures = nil
+	}
 }
 
 func (r *predictionJSONResponse) write(w http.ResponseWriter) error {

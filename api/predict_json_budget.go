@@ -271,7 +271,13 @@ type budgetJSONPlan struct {
 	// statement's opening `Result `, and from the statement's middle to
 	// the end of the conformity.
 	outcomeHead, outcomeTail [len(calib.Outcomes)][]byte
+	// terms holds, per term of the plan, its ν when fixed (`,"df":…`),
+	// the members from its group to the share's key, and its source to
+	// the end.
+	terms []termJSON
 }
+
+type termJSON struct{ df, mid, end []byte }
 
 // newBudgetJSONPlan encodes the sample-independent parts of p's budgets;
 // false when a limit cannot be encoded.
@@ -279,6 +285,23 @@ func newBudgetJSONPlan(p *lab.BudgetPlan) (*budgetJSONPlan, bool) {
 	j := &budgetJSONPlan{}
 	j.unit = appendJSONString(append(j.unit, `,"unit":`...), p.Context.Unit)
 	j.unit = append(j.unit, `,"value":`...)
+	for _, t := range p.Terms {
+		var tj termJSON
+		if t.FixedDF {
+			o := &jsonOut{ok: true}
+			o.floatPtr(`,"df":`, finitePtr(&t.DF))
+			tj.df = o.b
+		}
+		o := &jsonOut{ok: true}
+		if t.Group != "" {
+			o.str(`,"group":`, t.Group)
+		}
+		o.str(`,"name":`, t.Name)
+		o.key(`,"share":`)
+		tj.mid = o.b
+		tj.end = append(appendJSONString([]byte(`,"source":`), t.Source), '}')
+		j.terms = append(j.terms, tj)
+	}
 	if !p.HasLimits {
 		return j, true
 	}
@@ -320,8 +343,8 @@ func appendPlannedBudgetJSON(b []byte, p *lab.BudgetPlan, j *budgetJSONPlan, f *
 			return
 		}
 		o.key(k)
-		if slot < len(m.text) && m.set[slot] && m.bits[slot] == math.Float64bits(v) {
-			o.b = append(o.b, m.text[slot]...)
+		if slot < len(m.n) && m.n[slot] > 0 && m.bits[slot] == math.Float64bits(v) {
+			o.b = append(o.b, m.text[slot][:m.n[slot]]...)
 			return
 		}
 		start := len(o.b)
@@ -329,11 +352,14 @@ func appendPlannedBudgetJSON(b []byte, p *lab.BudgetPlan, j *budgetJSONPlan, f *
 			o.bad = v
 			return
 		}
-		if slot < len(m.text) {
-			m.bits[slot], m.set[slot] = math.Float64bits(v), true
-			m.text[slot] = append(m.text[slot][:0], o.b[start:]...)
+		if slot < len(m.n) && len(o.b)-start <= len(m.text[slot]) {
+			m.bits[slot] = math.Float64bits(v)
+			m.n[slot] = uint8(copy(m.text[slot][:], o.b[start:]))
 		}
 	}
+	// y and U as texts, each formatted once for the statement and its member.
+	var vbuf, ebuf [32]byte
+	vt, et := f.AppendValueText(vbuf[:0]), f.AppendExpandedText(ebuf[:0])
 	o.float(`{"approach":"bottom_up","combined":`, f.Combined)
 	if f.HasConformity {
 		c := &f.Conformity
@@ -345,9 +371,9 @@ func appendPlannedBudgetJSON(b []byte, p *lab.BudgetPlan, j *budgetJSONPlan, f *
 		o.floatPtr(`,"accept_low":`, finitePtr(&c.AcceptLow))
 		o.boolean(`,"accepted":`, c.Accepted)
 		o.raw(j.outcomeHead[k])
-		o.b = f.AppendValueText(o.b)
+		o.raw(vt)
 		o.key(" ± ")
-		o.b = f.AppendExpandedText(o.b)
+		o.raw(et)
 		o.raw(j.outcomeTail[k])
 	}
 	o.str(`,"coverage":`, string(f.Coverage))
@@ -355,7 +381,8 @@ func appendPlannedBudgetJSON(b []byte, p *lab.BudgetPlan, j *budgetJSONPlan, f *
 	o.floatPtr(`,"effective_df":`, finitePtr(&f.EffectiveDF))
 	o.float(`,"expanded":`, f.Expanded)
 	o.key(`,"expanded_text":"`)
-	o.b = append(f.AppendExpandedText(o.b), '"')
+	o.raw(et)
+	o.key(`"`)
 	memo(`,"level":`, 1, f.Level)
 	o.key(`,"notes":[`)
 	for i, n := range f.Notes {
@@ -371,25 +398,26 @@ func appendPlannedBudgetJSON(b []byte, p *lab.BudgetPlan, j *budgetJSONPlan, f *
 		if i > 0 {
 			o.key(",")
 		}
+		tj := &j.terms[f.TermIDs[i]]
 		o.float(`{"contribution":`, t.Contribution)
-		if calib.Finite(t.DF) {
+		switch {
+		case tj.df != nil:
+			o.raw(tj.df)
+		case calib.Finite(t.DF):
 			memo(`,"df":`, 2+i, t.DF)
-		} else {
+		default:
 			o.key(`,"df":null`)
 		}
-		if t.Group != "" {
-			o.str(`,"group":`, t.Group)
-		}
-		o.str(`,"name":`, t.Name)
-		o.float(`,"share":`, t.Share)
-		o.str(`,"source":`, string(t.Source))
-		o.key("}")
+		o.raw(tj.mid)
+		o.float("", t.Share)
+		o.raw(tj.end)
 	}
 	o.key("]")
 	o.raw(j.unit)
 	o.float("", f.Value)
 	o.key(`,"value_text":"`)
-	o.b = append(f.AppendValueText(o.b), '"', '}')
+	o.raw(vt)
+	o.key(`"}`)
 	return o.b, o.bad, o.ok
 }
 
@@ -397,8 +425,8 @@ func appendPlannedBudgetJSON(b []byte, p *lab.BudgetPlan, j *budgetJSONPlan, f *
 // written in each of a few places (k, the level, the first terms' ν).
 type floatMemo struct {
 	bits [10]uint64
-	set  [10]bool
-	text [10][]byte
+	n    [10]uint8 // the text's length; 0: none kept
+	text [10][32]byte
 }
 
 // finitePtr is f, or nil when *f is not finite (as the record's optional

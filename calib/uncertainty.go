@@ -674,11 +674,11 @@ func roundSig2(u float64, up bool) (float64, int) {
 	e := int(math.Floor(math.Log10(u))) - 1 // place of the second significant figure
 	for range 2 {
 		r := scaleRound(u, e, up)
-		if r >= 100*math.Pow(10, float64(e)) { // rounding carried into a third figure
+		if r >= 100*pow10(e) { // rounding carried into a third figure
 			e++
 			continue
 		}
-		if r < 10*math.Pow(10, float64(e))*(1-1e-12) { // log10 was one too high
+		if r < 10*pow10(e)*(1-1e-12) { // log10 was one too high
 			e--
 			continue
 		}
@@ -697,9 +697,27 @@ func scaleRound(v float64, e int, up bool) float64 {
 		}
 	}
 	if e < 0 {
-		p := math.Pow(10, float64(-e))
+		p := pow10(-e)
 		return round(v*p) / p
 	}
-	p := math.Pow(10, float64(e))
+	p := pow10(e)
 	return round(v/p) * p
+}
+
+// pow10Table holds math.Pow(10, e) for |e| ≤ 40, computed by math.Pow
+// itself, so that pow10 gives exactly what math.Pow gives, without its cost
+// (every budget rounds U and y).
+var pow10Table = func() (t [81]float64) {
+	for i := range t {
+		t[i] = math.Pow(10, float64(i-40))
+	}
+	return t
+}()
+
+// pow10 is math.Pow(10, e).
+func pow10(e int) float64 {
+	if e >= -40 && e <= 40 {
+		return pow10Table[e+40]
+	}
+	return math.Pow(10, float64(e))
 }

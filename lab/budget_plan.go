@@ -6,6 +6,8 @@ package lab
 // ResultBudget is the reference these must equal (budget_plan_test.go).
 
 import (
+	"math"
+
 	"curvekeeper/calib"
 )
 
@@ -23,9 +25,13 @@ type BudgetPlan struct {
 	// StatementMiddle is the conformity statement's text between U and the
 	// outcome (StatementMiddle of Limits and Rule).
 	StatementMiddle string
-	steps           []planStep
-	maxTerms        int
-	screens         bool // the spec runs Monte Carlo by itself where the GUM is in doubt
+	// Terms are the budget's possible terms in order: the calibration
+	// term, then the spec's; a budget holds them all but a repeatability
+	// term left out (BudgetFigures.TermIDs index them).
+	Terms    []PlanTerm
+	steps    []planStep
+	maxTerms int
+	screens  bool // the spec runs Monte Carlo by itself where the GUM is in doubt
 }
 
 // planStep is one term of the method's spec, after the calibration term:
@@ -33,8 +39,18 @@ type BudgetPlan struct {
 // term computed per sample.
 type planStep struct {
 	terms         []calib.UncertaintyTerm
+	first         int // the index in BudgetPlan.Terms of the step's first term
 	note          string
 	repeatability bool
+}
+
+// PlanTerm is what a term of a plan's budgets is whatever the sample: its
+// name, source and group and, when FixedDF, its degrees of freedom (+Inf
+// for infinite, as the budget states them).
+type PlanTerm struct {
+	Name, Source, Group string
+	DF                  float64
+	FixedDF             bool
 }
 
 // NewBudgetPlan returns the plan of the budgets under bc; nil when bc has
@@ -45,7 +61,8 @@ func NewBudgetPlan(bc BudgetContext) *BudgetPlan {
 	if spec == nil || (spec.Approach != "" && spec.Approach != ApproachBottomUp) || bc.MonteCarlo != nil {
 		return nil
 	}
-	p := &BudgetPlan{Context: bc, maxTerms: 1, screens: screensResults(spec)}
+	p := &BudgetPlan{Context: bc, maxTerms: 1, screens: screensResults(spec),
+		Terms: []PlanTerm{{Name: calibrationTermName, Source: string(calib.SourceCalibration)}}}
 	for _, t := range spec.Terms {
 		var st planStep
 		switch t {
@@ -59,11 +76,23 @@ func NewBudgetPlan(bc BudgetContext) *BudgetPlan {
 			st.terms = appendPreparationTerms(nil, spec.Preparation)
 		case TermRepeatability:
 			st.repeatability = true
+			st.first = len(p.Terms)
+			p.Terms = append(p.Terms, PlanTerm{Name: repeatabilityTermName, Source: string(calib.SourceRepeatability)})
 			p.maxTerms++
 		case TermRecovery:
 			st.terms = []calib.UncertaintyTerm{spec.Recovery.term()}
 		default:
 			continue
+		}
+		if st.terms != nil {
+			st.first = len(p.Terms)
+		}
+		for _, t := range st.terms {
+			df := t.DF
+			if df == 0 {
+				df = math.Inf(1) // as calib resolves it
+			}
+			p.Terms = append(p.Terms, PlanTerm{Name: t.Name, Source: string(t.Source), Group: t.Group, DF: df, FixedDF: true})
 		}
 		p.maxTerms += len(st.terms)
 		p.steps = append(p.steps, st)
@@ -84,7 +113,9 @@ type BudgetFigures struct {
 	Notes         []string
 	Conformity    calib.Conformity
 	HasConformity bool
-	in            []calib.UncertaintyTerm
+	// TermIDs[i] is the index in the plan's Terms of Budget.Terms[i].
+	TermIDs []int
+	in      []calib.UncertaintyTerm
 }
 
 // Covers reports whether Compute gives the budget of a result predicted
@@ -110,6 +141,7 @@ func (p *BudgetPlan) Compute(rep *calib.Report, pr calib.Prediction, responses [
 	}
 	in := append(f.in[:0], cal)
 	f.Notes = f.Notes[:0]
+	f.TermIDs = append(f.TermIDs[:0], 0)
 	for i := range p.steps {
 		st := &p.steps[i]
 		switch {
@@ -122,8 +154,12 @@ func (p *BudgetPlan) Compute(rep *calib.Report, pr calib.Prediction, responses [
 				continue
 			}
 			in = append(in, rt)
+			f.TermIDs = append(f.TermIDs, st.first)
 		default:
 			in = append(in, st.terms...)
+			for k := range st.terms {
+				f.TermIDs = append(f.TermIDs, st.first+k)
+			}
 		}
 	}
 	f.in = in
