@@ -558,7 +558,7 @@ func (r *BudgetRecord) addMonteCarlo(in calib.BudgetInput, b *calib.Budget, req 
 	r.MonteCarlo = out
 	r.ReportedInterval = reportedInterval(out, b)
 	if !out.Agrees {
-		r.Notes = append(r.Notes, "The Monte Carlo interval and y ± U differ by more than the numerical tolerance: the Monte Carlo interval is the better statement here and is the one reported (JCGM 101 §8.2); y ± U is kept beside it.")
+		r.Notes = append(r.Notes, "The Monte Carlo interval and y ± U differ by more than the numerical tolerance: the Monte Carlo interval is the better statement here (JCGM 101 §8.2).")
 	}
 	return nil
 }

@@ -11,26 +11,31 @@ import (
 )
 
 // budgetPlanCurves fits invented curves of each model the budgets meet:
-// a straight line (unweighted and 1/x), a line through the origin and a
-// quadratic, 7 levels in duplicate with noise from a fixed seed.
+// a straight line (unweighted and 1/x), a line through the origin, a
+// quadratic and a line with a weakly determined slope, 7 levels in
+// duplicate with noise from a fixed seed.
 func budgetPlanCurves(t *testing.T) map[string]*calib.Report {
 	t.Helper()
 	rng := rand.New(rand.NewPCG(21, 5))
 	out := map[string]*calib.Report{}
 	for _, c := range []struct {
-		name string
-		opt  calib.Options
-		f    func(x float64) float64
+		name  string
+		opt   calib.Options
+		f     func(x float64) float64
+		noise float64 // relative SD of the readings
 	}{
-		{"linear", calib.Options{Model: calib.Linear}, func(x float64) float64 { return 0.02 + 0.51*x }},
-		{"linear 1/x", calib.Options{Model: calib.Linear, Weighting: calib.WeightInvX}, func(x float64) float64 { return 0.01 + 0.3*x }},
-		{"origin", calib.Options{Model: calib.LinearOrigin}, func(x float64) float64 { return 0.4 * x }},
-		{"quadratic", calib.Options{Model: calib.Quadratic}, func(x float64) float64 { return 0.01 + 0.5*x - 0.02*x*x }},
+		{"linear", calib.Options{Model: calib.Linear}, func(x float64) float64 { return 0.02 + 0.51*x }, 0.01},
+		{"linear 1/x", calib.Options{Model: calib.Linear, Weighting: calib.WeightInvX}, func(x float64) float64 { return 0.01 + 0.3*x }, 0.01},
+		{"origin", calib.Options{Model: calib.LinearOrigin}, func(x float64) float64 { return 0.4 * x }, 0.01},
+		{"quadratic", calib.Options{Model: calib.Quadratic}, func(x float64) float64 { return 0.01 + 0.5*x - 0.02*x*x }, 0.01},
+		// A weakly determined slope: the GUM screen sends its results to
+		// ResultBudget's Monte Carlo check.
+		{"weak line", calib.Options{Model: calib.Linear}, func(x float64) float64 { return 0.1 + 0.004*x }, 0.05},
 	} {
 		var pts []calib.Point
 		for i, x := range []float64{0.5, 1, 2, 3, 4, 6, 8} {
 			for range 2 {
-				pts = append(pts, calib.Point{Level: fmt.Sprintf("L%d", i+1), X: x, Y: c.f(x) * (1 + 0.01*rng.NormFloat64())})
+				pts = append(pts, calib.Point{Level: fmt.Sprintf("L%d", i+1), X: x, Y: c.f(x) * (1 + c.noise*rng.NormFloat64())})
 			}
 		}
 		rep, err := calib.Fit(pts, c.opt)
@@ -118,6 +123,9 @@ func TestBudgetPlanMatchesResultBudget(t *testing.T) {
 				}
 			}
 		}
+	}
+	if screened == 0 {
+		t.Error("no result was screened: the weak line does not reach the screen")
 	}
 	if budgets < compared/2 {
 		t.Fatalf("only %d of %d cases gave a budget: the comparison is too thin", budgets, compared)
