@@ -219,6 +219,14 @@ func randBudget(r *rand.Rand) *oapi.UncertaintyBudget {
 		u.MonteCarlo = &oapi.MonteCarloCheck{Agrees: r.IntN(2) == 0, Discarded: r.IntN(100), Draws: r.IntN(1 << 22),
 			GumHigh: randFloat(r), GumLow: randFloat(r), High: randFloat(r), Level: randFloat(r), Low: randFloat(r),
 			Mean: randFloat(r), Sd: randFloat(r), Seed: r.Int64(), ShortHigh: randFloat(r), ShortLow: randFloat(r), Tolerance: randFloat(r)}
+		if r.IntN(2) == 0 {
+			tr, sc := oapi.MonteCarloTrigger(randString(r)), randString(r)
+			u.MonteCarlo.Trigger, u.MonteCarlo.Screen = &tr, &sc
+		}
+	}
+	if r.IntN(3) == 0 {
+		u.ReportedInterval = &oapi.ReportedInterval{High: randFloat(r), HighText: randString(r), Level: randFloat(r), Low: randFloat(r),
+			LowText: randString(r), Method: oapi.ReportedIntervalMethod(randString(r)), Reason: randString(r)}
 	}
 	return u
 }
