@@ -104,9 +104,9 @@ func (s *Server) CreatePredictions(ctx context.Context, req oapi.CreatePredictio
 }
 
 // predict quantifies samples against curve id; nothing is stored. With
-// direct, the budgets a plan computes are written as JSON into the answer
-// (predictionJSONResponse writes them) rather than into each result's
-// Uncertainty member.
+// direct, the answer is encoded as the results are made, and the budgets a
+// plan computes are written straight into it rather than into each
+// result's Uncertainty member.
 func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confidence, samples []oapi.PredictionSample, mc *oapi.MonteCarloRequest, direct bool) (*predictionJSONResponse, error) {
 	c, err := s.curve(ctx, id)
 	if err != nil {
@@ -138,9 +138,7 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 	var f *lab.BudgetFigures
 	switch {
 	case direct:
-		out.budgetEnd = make([]int, 0, len(samples))
-		out.budgetBuf = predictionBufs.Get().(*[]byte)
-		out.budgetJSON = (*out.budgetBuf)[:0]
+		out.begin()
 		f = budgetFigures.Get().(*lab.BudgetFigures)
 		out.pooledFigures = f
 	case bp.bc.Spec != nil:
@@ -153,19 +151,26 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		return samples[i].Responses, 1
 	}, func(i int, pr calib.Prediction) {
 		res := predictionOut(string(samples[i].ID), pr)
+		var planned *lab.BudgetFigures
 		switch {
 		case bp.bc.Spec == nil || budgetErr != nil:
 		case direct && bp.fast.Covers(r, pr):
-			budgetErr = out.addBudget(c, bp, pr, samples[i].Responses, f)
+			var ok bool
+			if ok, budgetErr = bp.fast.Compute(r, pr, samples[i].Responses, pr.Dilution, f); ok {
+				planned = f
+			}
 		default:
 			// Monte Carlo, asked for or screened, or no plan: the record.
 			res.Uncertainty, budgetErr = predictionBudget(c, bp, pr, samples[i].Responses, pr.Dilution, mc, f)
-			if direct {
-				out.budgetEnd = append(out.budgetEnd, len(out.budgetJSON))
-			}
 		}
 		out.Results = append(out.Results, res)
+		if direct {
+			out.addResult(bp, planned)
+		}
 	})
+	if direct {
+		out.end()
+	}
 	if err == nil {
 		err = budgetErr
 	}

@@ -12,7 +12,7 @@ import (
 
 // TestPlannedBudgetJSONMatchesReference checks the prediction route's fast
 // path for budgets against its reference: the whole answer written from the
-// plan's figures (addBudget, appendPredictionAnswer) must be byte for byte
+// plan's figures as predict streams it (begin, addResult, end) must be byte for byte
 // the answer written from lab.ResultBudget's record (budgetOut,
 // appendPredictionJSON, which predict_json_test.go checks against
 // encoding/json). Invented curves, specs with every term, limit and rule,
@@ -54,7 +54,6 @@ func TestPlannedBudgetJSONMatchesReference(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		c := &lab.Curve{Report: rep}
 		for si, spec := range specs {
 			for _, unit := range []string{"mg/L", "µg/L <as N> & \"total\""} {
 				var std *lab.StandardsTerm
@@ -70,6 +69,7 @@ func TestPlannedBudgetJSONMatchesReference(t *testing.T) {
 				bp := &budgetPlan{bc: bc, fast: fast, json: j}
 				var want oapi.PredictionResponse
 				got := &predictionJSONResponse{}
+				got.begin()
 				var f lab.BudgetFigures
 				with := 0
 				for i, ys := range samples {
@@ -78,14 +78,24 @@ func TestPlannedBudgetJSONMatchesReference(t *testing.T) {
 						t.Fatal(err)
 					}
 					res := predictionOut(fmt.Sprint(i), pr)
-					got.Results = append(got.Results, res)
-					if err := got.addBudget(c, bp, pr, ys, &f); err != nil {
-						t.Fatal(err)
-					}
 					r, err := lab.ResultBudget(rep, pr, ys, pr.Dilution, bc)
 					if err != nil {
 						t.Fatal(err)
 					}
+					var planned *lab.BudgetFigures
+					if fast.Covers(rep, pr) {
+						ok, err := fast.Compute(rep, pr, ys, pr.Dilution, &f)
+						if err != nil {
+							t.Fatal(err)
+						}
+						if ok {
+							planned = &f
+						}
+					} else if r != nil {
+						res.Uncertainty = budgetOut(r) // screened: the record, as predict does
+					}
+					got.Results = append(got.Results, res)
+					got.addResult(bp, planned)
 					if r != nil {
 						res.Uncertainty = budgetOut(r)
 						with++
@@ -99,13 +109,15 @@ func TestPlannedBudgetJSONMatchesReference(t *testing.T) {
 				if err != nil {
 					t.Fatal(err)
 				}
-				gotJSON, err := appendPredictionAnswer(nil, &got.PredictionResponse, got.budgetJSON, got.budgetEnd)
-				if err != nil {
-					t.Fatal(err)
+				got.end()
+				if got.bodyErr != nil {
+					t.Fatal(got.bodyErr)
 				}
+				gotJSON := got.body
 				if !bytes.Equal(gotJSON, wantJSON) {
 					t.Errorf("%s spec %d unit %q: planned budgets differ from the reference\nplanned   %s\nreference %s", model, si, unit, gotJSON, wantJSON)
 				}
+				got.release()
 			}
 		}
 	}
