@@ -96,24 +96,27 @@ func (s *Server) GetCurve(ctx context.Context, req oapi.GetCurveRequestObject) (
 // CreatePredictions converts unknowns' responses into concentrations with
 // intervals and flags.
 func (s *Server) CreatePredictions(ctx context.Context, req oapi.CreatePredictionsRequestObject) (oapi.CreatePredictionsResponseObject, error) {
-	out, err := s.predict(ctx, req.ID.String(), req.Body.Confidence, req.Body.Samples, req.Body.MonteCarlo)
+	out, err := s.predict(ctx, req.ID.String(), req.Body.Confidence, req.Body.Samples, req.Body.MonteCarlo, true)
 	if err != nil {
 		return nil, err
 	}
-	return (*predictionJSONResponse)(&out), nil
+	return out, nil
 }
 
-// predict quantifies samples against curve id; nothing is stored.
-func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confidence, samples []oapi.PredictionSample, mc *oapi.MonteCarloRequest) (oapi.PredictionResponse, error) {
+// predict quantifies samples against curve id; nothing is stored. With
+// direct, the answer is encoded as the results are made, and the budgets a
+// plan computes are written straight into it rather than into each
+// result's Uncertainty member.
+func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confidence, samples []oapi.PredictionSample, mc *oapi.MonteCarloRequest, direct bool) (*predictionJSONResponse, error) {
 	c, err := s.curve(ctx, id)
 	if err != nil {
-		return oapi.PredictionResponse{}, err
+		return nil, err
 	}
 	// The prediction route read the status with its token (authMiddleware).
 	status, ok := prefetchedStatus(ctx, id)
 	if !ok {
 		if status, err = s.lab.CurveStatus(ctx, id); err != nil {
-			return oapi.PredictionResponse{}, err
+			return nil, err
 		}
 	}
 	r := c.Report
@@ -121,19 +124,37 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 	if confidence != nil {
 		conf = *confidence
 	}
-	out := oapi.PredictionResponse{
+	out := &predictionJSONResponse{PredictionResponse: oapi.PredictionResponse{
 		CurveID: uuidOf(id), Analyte: c.Analyte, Unit: c.Unit, Confidence: conf,
 		CurveStatus: oapi.CurveStatus(status), CurveVerdict: oapi.Verdict(r.Verdict),
 		Cautions: calib.Cautions(), Results: make([]oapi.PredictionResult, 0, len(samples)),
-	}
-	bc, err := s.budgetContext(ctx, c)
-	if err == nil {
-		bc, err = s.withHistory(ctx, c, bc)
+	}}
+	bp, err := s.budgetPlan(ctx, c)
+	if err == nil && bp.bc.Spec != nil && bp.bc.Spec.TopDownSource == lab.TopDownSourceHistory {
+		// The top-down estimate from the QC history changes as verifications
+		// are stored: it is added to this request's copy of the plan, never
+		// to the cached one.
+		var bc lab.BudgetContext
+		if bc, err = s.withHistory(ctx, c, bp.bc); err == nil {
+			cp := *bp
+			cp.bc = bc
+			bp = &cp
+		}
 	}
 	if err != nil {
-		return oapi.PredictionResponse{}, err
+		return nil, err
 	}
 	var budgetErr error
+	direct = direct && bp.fast != nil && mc == nil
+	var f *lab.BudgetFigures
+	switch {
+	case direct:
+		out.begin()
+		f = budgetFigures.Get().(*lab.BudgetFigures)
+		out.pooledFigures = f
+	case bp.bc.Spec != nil:
+		f = new(lab.BudgetFigures)
+	}
 	err = lab.Predict(c, conf, len(samples), func(i int) ([]float64, float64) {
 		if d := samples[i].Dilution; d != nil {
 			return samples[i].Responses, *d
@@ -141,16 +162,32 @@ func (s *Server) predict(ctx context.Context, id string, confidence *oapi.Confid
 		return samples[i].Responses, 1
 	}, func(i int, pr calib.Prediction) {
 		res := predictionOut(string(samples[i].ID), pr)
-		if bc.Spec != nil && budgetErr == nil {
-			res.Uncertainty, budgetErr = predictionBudget(c, bc, pr, samples[i].Responses, pr.Dilution, mc)
+		var planned *lab.BudgetFigures
+		switch {
+		case bp.bc.Spec == nil || budgetErr != nil:
+		case direct && bp.fast.Covers(r, pr):
+			var ok bool
+			if ok, budgetErr = bp.fast.Compute(r, pr, samples[i].Responses, pr.Dilution, f); ok {
+				planned = f
+			}
+		default:
+			// Monte Carlo, asked for or screened, or no plan: the record.
+			res.Uncertainty, budgetErr = predictionBudget(c, bp, pr, samples[i].Responses, pr.Dilution, mc, f)
 		}
 		out.Results = append(out.Results, res)
+		if direct {
+			out.addResult(bp, planned)
+		}
 	})
+	if direct {
+		out.end()
+	}
 	if err == nil {
 		err = budgetErr
 	}
 	if err != nil {
-		return oapi.PredictionResponse{}, err
+		out.release()
+		return nil, err
 	}
 	return out, nil
 }

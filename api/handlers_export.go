@@ -94,6 +94,9 @@ func (s *Server) runResultsAs(ctx context.Context, rd *lab.Service, runID string
 				if b.Conformity != nil {
 					row.Conformity = b.Conformity.Outcome + " (" + b.Conformity.Rule + ")"
 				}
+				if ri := b.ReportedInterval; ri != nil {
+					row.IntervalMethod, row.IntervalLow, row.IntervalHigh = ri.Method, ri.LowText, ri.HighText
+				}
 			}
 			rows = append(rows, row)
 		}
@@ -124,6 +127,9 @@ func (s *Server) runResultsAs(ctx context.Context, rd *lab.Service, runID string
 			if b.Conformity != nil {
 				c := b.Conformity.Conformity(b.Value, b.Expanded)
 				o.Conformity = &c
+			}
+			if ri := b.ReportedInterval; ri != nil && ri.Method == lab.ReportedMonteCarlo {
+				o.Notes = append(o.Notes, "Reported: "+export.IntervalStatement(ri.LowText, ri.HighText, r.Unit, ri.Level)+". "+ri.Reason)
 			}
 		}
 	}
@@ -187,6 +193,10 @@ func runResultsHL7(run *lab.Run, results []lab.Result) ([]byte, error) {
 			if b := resultBudget(r); b != nil && b.ExpandedText != "" {
 				obx.ValueText = b.ValueText
 				obx.Uncertainty = export.UncertaintyStatement(b.ExpandedText, r.Unit, b.CoverageFactor, b.Level)
+				if ri := b.ReportedInterval; ri != nil && ri.Method == lab.ReportedMonteCarlo {
+					obx.Notes = append(obx.Notes, "GUM beside it: "+obx.Uncertainty+".")
+					obx.Uncertainty = export.IntervalStatement(ri.LowText, ri.HighText, r.Unit, ri.Level)
+				}
 				if b.Conformity != nil {
 					obx.Notes = append(obx.Notes, "Conformity: "+b.Conformity.Statement+" "+b.Conformity.Risk)
 					obx.AbnormalFlags = append(obx.AbnormalFlags, hl7ConformityFlag(b.Conformity, b.Value))

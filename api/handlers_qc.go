@@ -165,11 +165,11 @@ func (s *Server) CreateInstrumentPredictionBatch(ctx context.Context, req oapi.C
 			}
 			return nil, err
 		}
-		p, err := s.predict(ctx, in.Curve.ID, req.Body.Confidence, a.Samples, nil)
+		p, err := s.predict(ctx, in.Curve.ID, req.Body.Confidence, a.Samples, nil, false)
 		if err != nil {
 			return nil, err
 		}
-		out.Predictions = append(out.Predictions, p)
+		out.Predictions = append(out.Predictions, p.PredictionResponse)
 	}
 	return oapi.CreateInstrumentPredictionBatch200JSONResponse(out), nil
 }
@@ -186,9 +186,9 @@ func (s *Server) CreateInstrumentPredictions(ctx context.Context, req oapi.Creat
 	if err != nil {
 		return nil, err
 	}
-	out, err := s.predict(ctx, in.Curve.ID, req.Body.Confidence, req.Body.Samples, nil)
+	out, err := s.predict(ctx, in.Curve.ID, req.Body.Confidence, req.Body.Samples, nil, true)
 	if err != nil {
 		return nil, err
 	}
-	return (*predictionJSONResponse)(&out), nil
+	return out, nil
 }

@@ -17,6 +17,7 @@ import (
 	"unicode/utf8"
 
 	"curvekeeper/api/oapi"
+	"curvekeeper/lab"
 )
 
 // The encoder below lists the members of these generated types by hand, in
@@ -62,24 +63,10 @@ var (
 // the error encoding/json returns (a *json.UnsupportedValueError).
 func appendPredictionJSON(dst []byte, v *oapi.PredictionResponse) ([]byte, error) {
 	start := len(dst)
-	var bad float64
-	ok := true
-	b := dst
-	b = append(b, `{"analyte":`...)
-	b = appendJSONString(b, v.Analyte)
-	b = append(b, `,"cautions":`...)
-	b = appendJSONStrings(b, v.Cautions)
-	b = append(b, `,"confidence":`...)
-	if b, ok = appendJSONFloat(b, v.Confidence); !ok {
+	b, ok := appendPredictionHead(dst, v)
+	if !ok {
 		return dst[:start], unsupportedFloat(v.Confidence)
 	}
-	b = append(b, `,"curve_id":`...)
-	b = appendJSONUUID(b, v.CurveID)
-	b = append(b, `,"curve_status":`...)
-	b = appendJSONString(b, string(v.CurveStatus))
-	b = append(b, `,"curve_verdict":`...)
-	b = appendJSONString(b, string(v.CurveVerdict))
-	b = append(b, `,"results":`...)
 	if v.Results == nil {
 		b = append(b, "null"...)
 	} else {
@@ -88,21 +75,65 @@ func appendPredictionJSON(dst []byte, v *oapi.PredictionResponse) ([]byte, error
 			if i > 0 {
 				b = append(b, ',')
 			}
+			var bad float64
 			if b, bad, ok = appendPredictionResult(b, &v.Results[i]); !ok {
 				return dst[:start], unsupportedFloat(bad)
 			}
 		}
 		b = append(b, ']')
 	}
+	return appendPredictionTail(b, v), nil
+}
+
+// appendPredictionHead appends v's members before its results' value,
+// through `"results":`; false for a confidence that is NaN or infinite.
+func appendPredictionHead(b []byte, v *oapi.PredictionResponse) ([]byte, bool) {
+	ok := true
+	b = append(b, `{"analyte":`...)
+	b = appendJSONString(b, v.Analyte)
+	b = append(b, `,"cautions":`...)
+	b = appendJSONStrings(b, v.Cautions)
+	b = append(b, `,"confidence":`...)
+	if b, ok = appendJSONFloat(b, v.Confidence); !ok {
+		return b, false
+	}
+	b = append(b, `,"curve_id":`...)
+	b = appendJSONUUID(b, v.CurveID)
+	b = append(b, `,"curve_status":`...)
+	b = appendJSONString(b, string(v.CurveStatus))
+	b = append(b, `,"curve_verdict":`...)
+	b = appendJSONString(b, string(v.CurveVerdict))
+	return append(b, `,"results":`...), true
+}
+
+// appendPredictionTail appends v's members after its results, and the
+// newline.
+func appendPredictionTail(b []byte, v *oapi.PredictionResponse) []byte {
 	b = append(b, `,"unit":`...)
 	b = appendJSONString(b, v.Unit)
-	b = append(b, "}\n"...)
-	return b, nil
+	return append(b, "}\n"...)
 }
 
 // appendPredictionResult appends one result; on a NaN or infinity it returns
 // false and the offending number.
 func appendPredictionResult(b []byte, r *oapi.PredictionResult) ([]byte, float64, bool) {
+	b, bad, ok := appendPredictionResultMembers(b, r)
+	if !ok {
+		return b, bad, false
+	}
+	if r.Uncertainty != nil {
+		b = append(b, `,"uncertainty":`...)
+		if b, bad, ok = appendBudgetJSON(b, r.Uncertainty); !ok {
+			return b, bad, false
+		}
+	}
+	return append(b, '}'), 0, true
+}
+
+// appendPredictionResultMembers appends one result's members but its
+// uncertainty, without the closing brace; on a NaN or infinity it returns
+// false and the offending number.
+func appendPredictionResultMembers(b []byte, r *oapi.PredictionResult) ([]byte, float64, bool) {
 	ok := true
 	b = append(b, `{"concentration":`...)
 	if b, ok = appendJSONFloatPtr(b, r.Concentration); !ok {
@@ -146,14 +177,6 @@ func appendPredictionResult(b []byte, r *oapi.PredictionResult) ([]byte, float64
 	if b, ok = appendJSONFloatPtr(b, r.StandardError); !ok {
 		return b, *r.StandardError, false
 	}
-	if r.Uncertainty != nil {
-		b = append(b, `,"uncertainty":`...)
-		var bad float64
-		if b, bad, ok = appendBudgetJSON(b, r.Uncertainty); !ok {
-			return b, bad, false
-		}
-	}
-	b = append(b, '}')
 	return b, 0, true
 }
 
@@ -312,30 +335,104 @@ var predictionBufs = sync.Pool{New: func() any {
 const maxPooledPredictionBuf = 256 << 10
 
 // predictionJSONResponse is the 200 response of both prediction routes,
-// written by appendPredictionJSON. Headers and status are those of the
-// generated oapi.CreatePredictions200JSONResponse; as there, nothing is
-// written when the value cannot be encoded.
-type predictionJSONResponse oapi.PredictionResponse
+// written by appendPredictionJSON, or streamed (begin, addResult, end) as
+// predict makes its results. Headers and status are those of the generated
+// oapi.CreatePredictions200JSONResponse; as there, nothing is written when
+// the value cannot be encoded.
+type predictionJSONResponse struct {
+	oapi.PredictionResponse
+	// body holds the encoded answer, in bodyBuf (from predictionBufs);
+	// bodyErr is the first number that could not be encoded.
+	body    []byte
+	bodyBuf *[]byte
+	bodyErr error
+	memo    floatMemo
+	// pooledFigures, from budgetFigures, holds the plan's figures of one
+	// sample after another on the direct path.
+	pooledFigures *lab.BudgetFigures
+}
+
+// budgetFigures keeps BudgetFigures, with their arrays, between requests.
+var budgetFigures = sync.Pool{New: func() any { return new(lab.BudgetFigures) }}
+
+// begin starts the streamed answer: the members before the results. The
+// response's other members must be set.
+func (r *predictionJSONResponse) begin() {
+	r.bodyBuf = predictionBufs.Get().(*[]byte)
+	b, ok := appendPredictionHead((*r.bodyBuf)[:0], &r.PredictionResponse)
+	if !ok {
+		r.bodyErr = unsupportedFloat(r.Confidence)
+	}
+	r.body = append(b, '[')
+}
+
+// addResult appends the last of r.Results to the streamed answer; when the
+// result has no Uncertainty member and f holds the figures bp's plan
+// computed for it, its budget is written from them (appendPlannedBudgetJSON).
+func (r *predictionJSONResponse) addResult(bp *budgetPlan, f *lab.BudgetFigures) {
+	if r.bodyErr != nil {
+		return
+	}
+	res := &r.Results[len(r.Results)-1]
+	b := r.body
+	if len(r.Results) > 1 {
+		b = append(b, ',')
+	}
+	b, bad, ok := appendPredictionResultMembers(b, res)
+	switch {
+	case !ok:
+	case res.Uncertainty != nil:
+		b = append(b, `,"uncertainty":`...)
+		b, bad, ok = appendBudgetJSON(b, res.Uncertainty)
+	case f != nil:
+		b = append(b, `,"uncertainty":`...)
+		b, bad, ok = appendPlannedBudgetJSON(b, bp.fast, bp.json, f, &r.memo)
+	}
+	if !ok {
+		r.bodyErr = unsupportedFloat(bad)
+		return
+	}
+	r.body = append(b, '}')
+}
+
+// end closes the streamed answer.
+func (r *predictionJSONResponse) end() {
+	if r.bodyErr == nil {
+		r.body = appendPredictionTail(append(r.body, ']'), &r.PredictionResponse)
+	}
+}
+
+// release returns the body's buffer and the figures to their pools.
+func (r *predictionJSONResponse) release() {
+	if r.bodyBuf != nil && cap(r.body) <= maxPooledPredictionBuf {
+		*r.bodyBuf = r.body[:0]
+		predictionBufs.Put(r.bodyBuf)
+	}
+	r.bodyBuf, r.body = nil, nil
+	if r.pooledFigures != nil {
+		budgetFigures.Put(r.pooledFigures)
+		r.pooledFigures = nil
+	}
+}
 
 func (r *predictionJSONResponse) write(w http.ResponseWriter) error {
-	bp := predictionBufs.Get().(*[]byte)
-	b, err := appendPredictionJSON((*bp)[:0], (*oapi.PredictionResponse)(r))
-	if err != nil {
-		predictionBufs.Put(bp)
-		return err
+	defer r.release()
+	if r.bodyBuf == nil {
+		bp := predictionBufs.Get().(*[]byte)
+		b, err := appendPredictionJSON((*bp)[:0], &r.PredictionResponse)
+		r.bodyBuf, r.body, r.bodyErr = bp, b, err
+	}
+	if r.bodyErr != nil {
+		return r.bodyErr
 	}
 	w.Header().Set("Content-Type", "application/json")
 	// A body over net/http's 2 kB response buffer is otherwise sent
 	// chunked: the start of it at the first Write and the end chunk when
 	// the handler returns, two writes to the socket (and chunked framing
 	// for the client to parse) where one does.
-	w.Header().Set("Content-Length", strconv.Itoa(len(b)))
+	w.Header().Set("Content-Length", strconv.Itoa(len(r.body)))
 	w.WriteHeader(200)
-	_, err = w.Write(b)
-	if cap(b) <= maxPooledPredictionBuf {
-		*bp = b
-		predictionBufs.Put(bp)
-	}
+	_, err := w.Write(r.body)
 	return err
 }
 

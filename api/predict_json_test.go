@@ -231,6 +231,14 @@ func randBudget(r *rand.Rand) *oapi.UncertaintyBudget {
 		u.MonteCarlo = &oapi.MonteCarloCheck{Agrees: r.IntN(2) == 0, Discarded: r.IntN(100), Draws: r.IntN(1 << 22),
 			GumHigh: randFloat(r), GumLow: randFloat(r), High: randFloat(r), Level: randFloat(r), Low: randFloat(r),
 			Mean: randFloat(r), Sd: randFloat(r), Seed: r.Int64(), ShortHigh: randFloat(r), ShortLow: randFloat(r), Tolerance: randFloat(r)}
+		if r.IntN(2) == 0 {
+			tr, sc := oapi.MonteCarloTrigger(randString(r)), randString(r)
+			u.MonteCarlo.Trigger, u.MonteCarlo.Screen = &tr, &sc
+		}
+	}
+	if r.IntN(3) == 0 {
+		u.ReportedInterval = &oapi.ReportedInterval{High: randFloat(r), HighText: randString(r), Level: randFloat(r), Low: randFloat(r),
+			LowText: randString(r), Method: oapi.ReportedIntervalMethod(randString(r)), Reason: randString(r)}
 	}
 	return u
 }
@@ -322,7 +330,7 @@ func TestPredictionJSONUnsupportedNumbers(t *testing.T) {
 			checkSameAsEncodingJSON(t, v)
 
 			rec := httptest.NewRecorder()
-			if err := (*predictionJSONResponse)(v).VisitCreatePredictionsResponse(rec); err == nil {
+			if err := (&predictionJSONResponse{PredictionResponse: *v}).VisitCreatePredictionsResponse(rec); err == nil {
 				t.Fatalf("Visit accepted %v in member %d", bad, member)
 			}
 			if rec.Body.Len() != 0 || rec.Header().Get("Content-Type") != "" || rec.Code != http.StatusOK {
@@ -352,11 +360,11 @@ func TestPredictionJSONResponse(t *testing.T) {
 			t.Fatal(err)
 		}
 		got := httptest.NewRecorder()
-		if err := (*predictionJSONResponse)(v).VisitCreatePredictionsResponse(got); err != nil {
+		if err := (&predictionJSONResponse{PredictionResponse: *v}).VisitCreatePredictionsResponse(got); err != nil {
 			t.Fatal(err)
 		}
 		gotQC := httptest.NewRecorder()
-		if err := (*predictionJSONResponse)(v).VisitCreateInstrumentPredictionsResponse(gotQC); err != nil {
+		if err := (&predictionJSONResponse{PredictionResponse: *v}).VisitCreateInstrumentPredictionsResponse(gotQC); err != nil {
 			t.Fatal(err)
 		}
 		for _, c := range []struct{ got, want *httptest.ResponseRecorder }{{got, want}, {gotQC, wantQC}} {

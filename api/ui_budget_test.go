@@ -94,3 +94,41 @@ func TestBrowserResultBudget(t *testing.T) {
 		b.shotOf(`#samples`, name+"-samples")
 	}
 }
+
+// TestUICurvePageShowsReportedInterval posts an invented run whose slope is
+// weakly determined (Fieller's g about 0.2) under a method with the default
+// Monte Carlo setting: the curve page's budget says the Monte Carlo check
+// ran by itself, with its draws and seed, and that the result reports the
+// Monte Carlo interval, y ± U beside it.
+func TestUICurvePageShowsReportedInterval(t *testing.T) {
+	e := newUIEnv(t, false)
+	e.api(t, e.admin, http.MethodPost, "/v1/methods", map[string]any{
+		"name": "fen-weak-budget", "model": "linear", "weighting": "none",
+		"analytes": []map[string]any{{"name": "Pb", "unit": "ug/L", "uncertainty": map[string]any{
+			"terms": []string{"calibration"}, "limits": map[string]any{"upper": 5.0, "rule": "guard_band_u"}}}},
+	}, http.StatusCreated, nil)
+	var run struct {
+		Curves []struct{ ID string } `json:"curves"`
+	}
+	resp := [][]float64{{0.108, 0.101}, {0.103, 0.114}, {0.114, 0.108}, {0.121, 0.114}, {0.114, 0.123}, {0.125, 0.123}}
+	var stds []map[string]any
+	for i, r := range resp {
+		stds = append(stds, map[string]any{"analyte": "Pb", "level": "Pb-" + string(rune('1'+i)), "concentration": float64(i + 1), "responses": r})
+	}
+	e.api(t, e.tokens[lab.ScopeRunsWrite], http.MethodPost, "/v1/runs", map[string]any{
+		"method": "fen-weak-budget", "instrument": "fen-icpms-4", "acquired_at": uiStart.AddDate(0, 0, uiDays+1).Format(time.RFC3339),
+		"operator": "analyst-ines", "standards": stds,
+		"samples": []map[string]any{{"id": "PB-W-22", "analyte": "Pb", "responses": []float64{0.108, 0.109}}},
+	}, http.StatusCreated, &run)
+	b := e.browser(t)
+	b.mustSignIn(e.tokens[lab.ScopeCurvesReview])
+	p := b.get("/ui/curves/" + run.Curves[0].ID)
+	for _, want := range []string{
+		"Monte Carlo check (JCGM 101, run by itself: the slope is weakly determined", "200000 draws, seed ",
+		"Reported interval: Monte Carlo", ", Monte Carlo interval ", "beside y ± U = ", "Monte Carlo 95 % coverage interval",
+	} {
+		if !strings.Contains(p.body, want) {
+			t.Errorf("curve page lacks %q", want)
+		}
+	}
+}

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"net/http"
+	"reflect"
 	"strconv"
 	"strings"
 	"testing"
@@ -268,7 +269,7 @@ func TestResultBudgetThreeTerms(t *testing.T) {
 	}
 	again := decode[oapi.PredictionResponse](t, e.postJSON(t, e.admin, "/v1/curves/"+run.Curves[0].ID.String()+"/predictions",
 		map[string]any{"samples": []map[string]any{{"id": "W-1", "responses": budgetSample}}, "monte_carlo": map[string]any{"seed": 7}}), http.StatusOK)
-	if *again.Results[0].Uncertainty.MonteCarlo != *m {
+	if !reflect.DeepEqual(again.Results[0].Uncertainty.MonteCarlo, m) {
 		t.Errorf("the same seed gave %+v, then %+v", *m, *again.Results[0].Uncertainty.MonteCarlo)
 	}
 

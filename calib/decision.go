@@ -77,11 +77,45 @@ type Conformity struct {
 // Preconditions: result finite, U finite and ≥ 0, at least one finite
 // limit, lower ≤ upper when both are given.
 func Decide(result, u float64, spec Specification, rule DecisionRule) (Conformity, error) {
-	if math.IsNaN(result) || math.IsInf(result, 0) {
-		return Conformity{}, inputErr("result", "not a finite number")
+	c, err := Judge(result, u, spec, rule)
+	if err != nil {
+		return Conformity{}, err
 	}
+	c.Cautions = Cautions()
+	return c, nil
+}
+
+// Judge is Decide without the cautions (Cautions is nil), and allocates
+// nothing: for a caller that states the cautions once beside many results.
+func Judge(result, u float64, spec Specification, rule DecisionRule) (Conformity, error) {
 	if math.IsNaN(u) || math.IsInf(u, 0) || u < 0 {
 		return Conformity{}, inputErr("expanded_uncertainty", "must be a finite number ≥ 0, got %v", u)
+	}
+	return judge(result, u, u, spec, rule)
+}
+
+// DecideInterval is Decide for a coverage interval [low, high] about the
+// result that need not be symmetric (a Monte Carlo interval, JCGM 101
+// §7.7): under the guard band the band at an upper limit is high − result,
+// at a lower limit result − low (each at least 0). Expanded is the larger
+// of the two. Preconditions: those of Decide, low ≤ high, both finite.
+func DecideInterval(result, low, high float64, spec Specification, rule DecisionRule) (Conformity, error) {
+	if math.IsNaN(low) || math.IsInf(low, 0) || math.IsNaN(high) || math.IsInf(high, 0) || low > high {
+		return Conformity{}, inputErr("interval", "needs finite ends, low ≤ high, got [%v, %v]", low, high)
+	}
+	c, err := judge(result, max(0, result-low), max(0, high-result), spec, rule)
+	if err != nil {
+		return Conformity{}, err
+	}
+	c.Cautions = Cautions()
+	return c, nil
+}
+
+// judge states the conformity with the bands wLow at a lower limit and
+// wHigh at an upper limit (both U for a symmetric interval).
+func judge(result, wLow, wHigh float64, spec Specification, rule DecisionRule) (Conformity, error) {
+	if math.IsNaN(result) || math.IsInf(result, 0) {
+		return Conformity{}, inputErr("result", "not a finite number")
 	}
 	if !spec.HasLower && !spec.HasUpper {
 		return Conformity{}, inputErr("specification", "needs a lower or an upper limit")
@@ -100,22 +134,21 @@ func Decide(result, u float64, spec Specification, rule DecisionRule) (Conformit
 	if rule != RuleSimple && rule != RuleGuardBand {
 		return Conformity{}, inputErr("rule", "unknown decision rule %q", rule)
 	}
-	c := Conformity{Rule: rule, Spec: spec, Result: result, Expanded: u,
-		AcceptLow: math.Inf(-1), AcceptHigh: math.Inf(1), Cautions: Cautions()}
-	w := 0.0
-	if rule == RuleGuardBand {
-		w = u
+	c := Conformity{Rule: rule, Spec: spec, Result: result, Expanded: max(wLow, wHigh),
+		AcceptLow: math.Inf(-1), AcceptHigh: math.Inf(1)}
+	if rule != RuleGuardBand {
+		wLow, wHigh = 0, 0
 	}
 	rank := 0 // 0 pass, 1 conditional pass, 2 conditional fail, 3 fail
 	if spec.HasUpper {
-		c.AcceptHigh = spec.Upper - w
-		rank = max(rank, sideRank(result-spec.Upper, w))
+		c.AcceptHigh = spec.Upper - wHigh
+		rank = max(rank, sideRank(result-spec.Upper, wHigh))
 	}
 	if spec.HasLower {
-		c.AcceptLow = spec.Lower + w
-		rank = max(rank, sideRank(spec.Lower-result, w))
+		c.AcceptLow = spec.Lower + wLow
+		rank = max(rank, sideRank(spec.Lower-result, wLow))
 	}
-	c.Outcome = [...]string{OutcomePass, OutcomeConditionalPass, OutcomeConditionalFail, OutcomeFail}[rank]
+	c.Outcome = Outcomes[rank]
 	c.Accepted = rank == 0
 	c.Risk = riskWording(rule, rank)
 	return c, nil
@@ -135,6 +168,20 @@ func sideRank(d, w float64) int {
 	default:
 		return 3
 	}
+}
+
+// Outcomes lists the outcomes of a conformity statement, from best to worst.
+var Outcomes = [...]string{OutcomePass, OutcomeConditionalPass, OutcomeConditionalFail, OutcomeFail}
+
+// Risk returns the wording of the risk that Decide states for the outcome
+// (one of Outcomes) under the rule; "" for an unknown outcome.
+func (rule DecisionRule) Risk(outcome string) string {
+	for rank, o := range Outcomes {
+		if o == outcome {
+			return riskWording(rule, rank)
+		}
+	}
+	return ""
 }
 
 func riskWording(rule DecisionRule, rank int) string {

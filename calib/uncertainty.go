@@ -289,11 +289,10 @@ func (r *Report) CalibrationTerm(name string, responses []float64, dilution floa
 // r.Predict (the prediction route and ingest have it), so the readings are
 // not inverted twice.
 func (r *Report) CalibrationTermOf(name string, pr Prediction) (UncertaintyTerm, error) {
-	if !pr.HasEstimate() {
-		return UncertaintyTerm{}, inputErr("responses", "the curve gives no single concentration for these readings: %s", pr.Method)
+	t, err := r.GUMCalibrationTerm(name, pr)
+	if err != nil {
+		return UncertaintyTerm{}, err
 	}
-	t := UncertaintyTerm{Name: name, Source: SourceCalibration, Kind: DistNormal, Value: pr.Concentration,
-		StdUncertainty: pr.StandardError, DF: float64(r.DF)}
 	if r.Model == Linear || originLine(r.Model) {
 		x0 := pr.Concentration / pr.Dilution
 		w0 := r.unknownWeight(x0, pr.MeanResponse)
@@ -311,6 +310,17 @@ func (r *Report) CalibrationTermOf(name string, pr Prediction) (UncertaintyTerm,
 	return t, nil
 }
 
+// GUMCalibrationTerm is CalibrationTermOf without the CurveDraw: the term
+// as ComputeBudget uses it (Monte Carlo then draws x̂0 from N(x̂0, u²)). It
+// allocates nothing.
+func (r *Report) GUMCalibrationTerm(name string, pr Prediction) (UncertaintyTerm, error) {
+	if !pr.HasEstimate() {
+		return UncertaintyTerm{}, inputErr("responses", "the curve gives no single concentration for these readings: %s", pr.Method)
+	}
+	return UncertaintyTerm{Name: name, Source: SourceCalibration, Kind: DistNormal, Value: pr.Concentration,
+		StdUncertainty: pr.StandardError, DF: float64(r.DF)}, nil
+}
+
 // checkedMeanSD is meanSD for caller input: it refuses fewer than two values
 // and any value that is not finite, naming field.
 func checkedMeanSD(field string, v []float64) (mean, sd float64, err error) {
@@ -326,9 +336,10 @@ func checkedMeanSD(field string, v []float64) (mean, sd float64, err error) {
 	return mean, sd, nil
 }
 
-// resolved returns the input with its defaults filled in, or an error that
-// names the offending field.
-func (in BudgetInput) resolved() (BudgetInput, error) {
+// resolveHead returns the input with the defaults of its model, coverage,
+// level and constant filled in (not its terms'), or an error that names the
+// offending field.
+func (in BudgetInput) resolveHead() (BudgetInput, error) {
 	if in.Model == "" {
 		in.Model = ModelProduct
 	}
@@ -356,79 +367,107 @@ func (in BudgetInput) resolved() (BudgetInput, error) {
 	if len(in.Terms) == 0 {
 		return in, inputErr("terms", "a budget needs at least one term")
 	}
+	return in, nil
+}
+
+// resolved returns the input with its defaults filled in, or an error that
+// names the offending field.
+func (in BudgetInput) resolved() (BudgetInput, error) {
+	in, err := in.resolveHead()
+	if err != nil {
+		return in, err
+	}
 	terms := make([]UncertaintyTerm, len(in.Terms))
 	for i, t := range in.Terms {
-		f := "terms[" + strconv.Itoa(i) + "]"
-		if t.Kind == "" {
-			t.Kind = DistNormal
+		if terms[i], err = resolveTerm(in.Model, i, t, func(j int) *UncertaintyTerm { return &terms[j] }); err != nil {
+			return in, err
 		}
-		if t.Kind != DistNormal && t.Kind != DistRectangular && t.Kind != DistTypeA {
-			return in, inputErr(f+".kind", "unknown distribution %q", t.Kind)
-		}
-		if t.Sensitivity == 0 {
-			t.Sensitivity = 1
-		}
-		if t.Exponent == 0 {
-			t.Exponent = 1
-		}
-		if t.DF == 0 {
-			t.DF = math.Inf(1)
-		}
-		for _, c := range []struct {
-			name string
-			v    float64
-		}{{"value", t.Value}, {"std_uncertainty", t.StdUncertainty}, {"sensitivity", t.Sensitivity}, {"exponent", t.Exponent}} {
-			if math.IsNaN(c.v) || math.IsInf(c.v, 0) {
-				return in, inputErr(f+"."+c.name, "not a finite number")
-			}
-		}
-		if t.StdUncertainty < 0 {
-			return in, inputErr(f+".std_uncertainty", "must be ≥ 0, got %v", t.StdUncertainty)
-		}
-		if !(t.DF >= 1) {
-			return in, inputErr(f+".df", "degrees of freedom must be ≥ 1 or infinite (0), got %v", t.DF)
-		}
-		if in.Model == ModelProduct && t.Value == 0 {
-			return in, inputErr(f+".value", "a product model cannot hold a zero factor")
-		}
-		if t.Group != "" {
-			if t.Curve != nil {
-				return in, inputErr(f+".group", "a calibration term with a curve cannot be in a correlation group")
-			}
-			// Groups are few: the first term of the group is found by a scan
-			// of the terms before, which allocates nothing.
-			for j := range i {
-				if terms[j].Group == t.Group {
-					if terms[j].Kind != t.Kind || terms[j].DF != t.DF {
-						return in, inputErr(f+".group", "terms of group %q must share distribution and degrees of freedom", t.Group)
-					}
-					break
-				}
-			}
-		}
-		terms[i] = t
 	}
 	in.Terms = terms
 	return in, nil
 }
 
+// termField names term i in an error.
+func termField(i int, name string) string {
+	return "terms[" + strconv.Itoa(i) + "]." + name
+}
+
+// resolveTerm returns term i of a budget of model with its defaults filled
+// in, or an error naming the offending field; earlier(j) is the resolved
+// term j < i (a term of a correlation group must match the group's first).
+func resolveTerm(model BudgetModel, i int, t UncertaintyTerm, earlier func(j int) *UncertaintyTerm) (UncertaintyTerm, error) {
+	if t.Kind == "" {
+		t.Kind = DistNormal
+	}
+	if t.Kind != DistNormal && t.Kind != DistRectangular && t.Kind != DistTypeA {
+		return t, inputErr(termField(i, "kind"), "unknown distribution %q", t.Kind)
+	}
+	if t.Sensitivity == 0 {
+		t.Sensitivity = 1
+	}
+	if t.Exponent == 0 {
+		t.Exponent = 1
+	}
+	if t.DF == 0 {
+		t.DF = math.Inf(1)
+	}
+	for _, c := range [...]struct {
+		name string
+		v    float64
+	}{{"value", t.Value}, {"std_uncertainty", t.StdUncertainty}, {"sensitivity", t.Sensitivity}, {"exponent", t.Exponent}} {
+		if math.IsNaN(c.v) || math.IsInf(c.v, 0) {
+			return t, inputErr(termField(i, c.name), "not a finite number")
+		}
+	}
+	if t.StdUncertainty < 0 {
+		return t, inputErr(termField(i, "std_uncertainty"), "must be ≥ 0, got %v", t.StdUncertainty)
+	}
+	if !(t.DF >= 1) {
+		return t, inputErr(termField(i, "df"), "degrees of freedom must be ≥ 1 or infinite (0), got %v", t.DF)
+	}
+	if model == ModelProduct && t.Value == 0 {
+		return t, inputErr(termField(i, "value"), "a product model cannot hold a zero factor")
+	}
+	if t.Group != "" {
+		if t.Curve != nil {
+			return t, inputErr(termField(i, "group"), "a calibration term with a curve cannot be in a correlation group")
+		}
+		// Groups are few: the first term of the group is found by a scan
+		// of the terms before, which allocates nothing.
+		for j := range i {
+			if e := earlier(j); e.Group == t.Group {
+				if e.Kind != t.Kind || e.DF != t.DF {
+					return t, inputErr(termField(i, "group"), "terms of group %q must share distribution and degrees of freedom", t.Group)
+				}
+				break
+			}
+		}
+	}
+	return t, nil
+}
+
 // modelValue returns y = f(x) for the resolved input at the values x.
 func (in *BudgetInput) modelValue(x func(i int) float64) float64 {
-	if in.Model == ModelSum {
-		y := in.Constant
-		for i, t := range in.Terms {
-			y += t.Sensitivity * x(i)
+	return modelValue(in.Model, in.Constant, len(in.Terms), func(i int) *UncertaintyTerm { return &in.Terms[i] }, x)
+}
+
+// modelValue returns y = f(x) of a model with the constant and the n
+// resolved terms term(i) at the values x.
+func modelValue(model BudgetModel, constant float64, n int, term func(i int) *UncertaintyTerm, x func(i int) float64) float64 {
+	y := constant
+	if model == ModelSum {
+		for i := range n {
+			y += term(i).Sensitivity * x(i)
 		}
 		return y
 	}
-	y := in.Constant
-	for i, t := range in.Terms {
-		if t.Exponent == 1 {
+	for i := range n {
+		if p := term(i).Exponent; p == 1 {
 			y *= x(i)
-		} else if t.Exponent == -1 {
+		} else if p == -1 {
 			y /= x(i)
 		} else {
-			y *= math.Pow(x(i), t.Exponent)
+			y *= math.Pow(x(i), p)
 		}
 	}
 	return y
@@ -450,16 +489,46 @@ func (in *BudgetInput) modelValue(x func(i int) float64) float64 {
 // one term, every value and uncertainty finite, u ≥ 0, ν ≥ 1 or infinite, no
 // zero factor in a product model, the terms of a group of one kind and ν.
 func ComputeBudget(in BudgetInput) (Budget, error) {
-	in, err := in.resolved()
-	if err != nil {
+	var b Budget
+	if err := ComputeBudgetInto(in, &b); err != nil {
 		return Budget{}, err
 	}
-	y := in.modelValue(func(i int) float64 { return in.Terms[i].Value })
-	if math.IsNaN(y) || math.IsInf(y, 0) {
-		return Budget{}, inputErr("terms", "the model value is outside the numerically usable range")
+	b.Cautions = Cautions()
+	var buf [32]byte
+	b.ExpandedText = string(b.AppendExpandedText(buf[:0]))
+	b.ValueText = string(b.AppendValueText(buf[:0]))
+	return b, nil
+}
+
+// ComputeBudgetInto is ComputeBudget into dst without the cautions and the
+// texts (ExpandedText and ValueText are left empty: AppendExpandedText and
+// AppendValueText write them). It reuses the array of dst.Terms and, when
+// that holds the terms, allocates nothing: for a caller that computes many
+// budgets and states the cautions once. On an error dst is left undefined.
+func ComputeBudgetInto(in BudgetInput, dst *Budget) error {
+	in, err := in.resolveHead()
+	if err != nil {
+		return err
 	}
-	b := Budget{Model: in.Model, Value: y, Coverage: in.Coverage, Level: in.Level, Cautions: Cautions(),
-		Terms: make([]TermResult, len(in.Terms))}
+	terms := dst.Terms[:0]
+	if cap(terms) < len(in.Terms) {
+		terms = make([]TermResult, len(in.Terms))
+	}
+	terms = terms[:len(in.Terms)]
+	for i, t := range in.Terms {
+		rt, err := resolveTerm(in.Model, i, t, func(j int) *UncertaintyTerm { return &terms[j].UncertaintyTerm })
+		if err != nil {
+			return err
+		}
+		terms[i] = TermResult{UncertaintyTerm: rt}
+	}
+	y := modelValue(in.Model, in.Constant, len(terms), func(i int) *UncertaintyTerm { return &terms[i].UncertaintyTerm },
+		func(i int) float64 { return terms[i].Value })
+	if math.IsNaN(y) || math.IsInf(y, 0) {
+		return inputErr("terms", "the model value is outside the numerically usable range")
+	}
+	*dst = Budget{Model: in.Model, Value: y, Coverage: in.Coverage, Level: in.Level, Terms: terms}
+	b := dst
 	// groupSum returns the sum of the contributions of group g's terms (a
 	// scan: groups are few, and a map would be allocated per budget).
 	groupSum := func(g string) float64 {
@@ -471,7 +540,8 @@ func ComputeBudget(in BudgetInput) (Budget, error) {
 		}
 		return sum
 	}
-	for i, t := range in.Terms {
+	for i := range b.Terms {
+		t := &b.Terms[i]
 		c := t.Sensitivity
 		if in.Model == ModelProduct {
 			c = t.Exponent * y / t.Value
@@ -480,12 +550,12 @@ func ComputeBudget(in BudgetInput) (Budget, error) {
 		if t.Value != 0 {
 			rel = t.StdUncertainty / math.Abs(t.Value)
 		}
-		b.Terms[i] = TermResult{UncertaintyTerm: t, Coefficient: c, Contribution: c * t.StdUncertainty, Relative: rel}
+		t.Coefficient, t.Contribution, t.Relative = c, c*t.StdUncertainty, rel
 	}
 	// ug returns the contribution of term i's component: its group's sum,
 	// or its own; first reports whether i is the first term of it.
 	ug := func(i int) (u float64, first bool) {
-		t := b.Terms[i]
+		t := &b.Terms[i]
 		if t.Group == "" {
 			return t.Contribution, true
 		}
@@ -499,15 +569,16 @@ func ComputeBudget(in BudgetInput) (Budget, error) {
 	}
 	b.Combined = math.Sqrt(uc2)
 	if math.IsInf(b.Combined, 0) || math.IsNaN(b.Combined) {
-		return Budget{}, inputErr("terms", "the combined uncertainty is outside the numerically usable range")
+		return inputErr("terms", "the combined uncertainty is outside the numerically usable range")
 	}
 	// Shares, and Welch–Satterthwaite in the scale-free form
 	// 1/ν_eff = Σ_g (u_g/u_c)⁴/ν_g, which cannot overflow.
 	var ws float64
-	for i, t := range b.Terms {
+	for i := range b.Terms {
+		t := &b.Terms[i]
 		u, first := ug(i)
 		if uc2 > 0 {
-			b.Terms[i].Share = t.Contribution * u / uc2
+			t.Share = t.Contribution * u / uc2
 			if first {
 				ws += wsTerm(u/b.Combined, t.DF)
 			}
@@ -525,16 +596,32 @@ func ComputeBudget(in BudgetInput) (Budget, error) {
 	b.ExpandedExact = b.CoverageFactor * b.Combined
 	if b.ExpandedExact == 0 {
 		// No uncertainty gives no rounding place: y is kept as it is.
-		b.ValueRounded, b.ExpandedText, b.ValueText = y, "0", strconv.FormatFloat(y, 'g', -1, 64)
-		return b, nil
+		b.ValueRounded = y
+		return nil
 	}
 	var place int
 	b.Expanded, place = roundSig2(b.ExpandedExact, in.RoundUp)
 	b.ValueRounded = scaleRound(y, place, false)
 	b.Decimals = max(0, -place)
-	b.ExpandedText = formatDecimals(b.Expanded, b.Decimals)
-	b.ValueText = formatDecimals(b.ValueRounded, b.Decimals)
-	return b, nil
+	return nil
+}
+
+// AppendExpandedText appends U as ExpandedText states it: with Decimals
+// digits after the point, "0" when U is 0.
+func (b *Budget) AppendExpandedText(dst []byte) []byte {
+	if b.ExpandedExact == 0 {
+		return append(dst, '0')
+	}
+	return strconv.AppendFloat(dst, b.Expanded, 'f', b.Decimals, 64)
+}
+
+// AppendValueText appends y as ValueText states it: rounded to U's place
+// with Decimals digits after the point; unrounded (shortest form) when U is 0.
+func (b *Budget) AppendValueText(dst []byte) []byte {
+	if b.ExpandedExact == 0 {
+		return strconv.AppendFloat(dst, b.ValueRounded, 'g', -1, 64)
+	}
+	return strconv.AppendFloat(dst, b.ValueRounded, 'f', b.Decimals, 64)
 }
 
 // firstOfGroup reports whether term i is the first of its group.
@@ -587,11 +674,11 @@ func roundSig2(u float64, up bool) (float64, int) {
 	e := int(math.Floor(math.Log10(u))) - 1 // place of the second significant figure
 	for range 2 {
 		r := scaleRound(u, e, up)
-		if r >= 100*math.Pow(10, float64(e)) { // rounding carried into a third figure
+		if r >= 100*pow10(e) { // rounding carried into a third figure
 			e++
 			continue
 		}
-		if r < 10*math.Pow(10, float64(e))*(1-1e-12) { // log10 was one too high
+		if r < 10*pow10(e)*(1-1e-12) { // log10 was one too high
 			e--
 			continue
 		}
@@ -610,14 +697,27 @@ func scaleRound(v float64, e int, up bool) float64 {
 		}
 	}
 	if e < 0 {
-		p := math.Pow(10, float64(-e))
+		p := pow10(-e)
 		return round(v*p) / p
 	}
-	p := math.Pow(10, float64(e))
+	p := pow10(e)
 	return round(v/p) * p
 }
 
-// formatDecimals formats v with exactly d digits after the point.
-func formatDecimals(v float64, d int) string {
-	return strconv.FormatFloat(v, 'f', d, 64)
+// pow10Table holds math.Pow(10, e) for |e| ≤ 40, computed by math.Pow
+// itself, so that pow10 gives exactly what math.Pow gives, without its cost
+// (every budget rounds U and y).
+var pow10Table = func() (t [81]float64) {
+	for i := range t {
+		t[i] = math.Pow(10, float64(i-40))
+	}
+	return t
+}()
+
+// pow10 is math.Pow(10, e).
+func pow10(e int) float64 {
+	if e >= -40 && e <= 40 {
+		return pow10Table[e+40]
+	}
+	return math.Pow(10, float64(e))
 }

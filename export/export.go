@@ -25,6 +25,17 @@ const (
 	ReleaseWithheld    = "withheld"    // rejected, failed, unfittable or superseded curve, or a failed verification
 )
 
+// IntervalStatement states a Monte Carlo coverage interval a result reports
+// in words, e.g. "Monte Carlo coverage interval 0.12 to 0.31 mg/L (coverage
+// probability about 95 %, JCGM 101)"; low and high as reported.
+func IntervalStatement(low, high, unit string, level float64) string {
+	s := "Monte Carlo coverage interval " + low + " to " + high
+	if unit != "" {
+		s += " " + unit
+	}
+	return s + " (coverage probability about " + strconv.FormatFloat(100*level, 'f', -1, 64) + " %, JCGM 101)"
+}
+
 // UncertaintyStatement states an expanded uncertainty in words, e.g.
 // "Expanded uncertainty U = 0.21 mg/L (k = 2.09, coverage probability about
 // 95 %)". expanded is U as it is reported (two significant figures); k ≤ 0

@@ -3,7 +3,6 @@ package lab
 import (
 	"context"
 	"encoding/json"
-	"fmt"
 	"math"
 	"slices"
 	"strconv"
@@ -52,6 +51,10 @@ type UncertaintySpec struct {
 	// ApproachLarger; the last two need TopDownRelative, or TopDownSource
 	// TopDownSourceHistory.
 	Approach string `json:"approach,omitempty"`
+	// MonteCarlo is MonteCarloAuto (the default: a Monte Carlo check runs
+	// by itself where ScreenGUM puts the GUM framework in doubt) or
+	// MonteCarloOnRequest (only when a prediction asks for it).
+	MonteCarlo string `json:"monte_carlo,omitempty"`
 	// TopDownRelative is the relative standard uncertainty u_c/|y| of the
 	// lab's top-down estimate (calib.ComputeTopDown: within-lab
 	// reproducibility and bias, ISO 11352), used with k = 2. With the
@@ -129,6 +132,9 @@ func checkUncertaintySpec(p string, u *UncertaintySpec) error {
 	}
 	if u.Coverage != "" && u.Coverage != string(calib.CoverageStudentT) && u.Coverage != string(calib.CoverageK2) {
 		return FieldError(p+"/coverage", "coverage is student_t or k2")
+	}
+	if u.MonteCarlo != "" && u.MonteCarlo != MonteCarloAuto && u.MonteCarlo != MonteCarloOnRequest {
+		return FieldError(p+"/monte_carlo", "monte_carlo is %s or %s", MonteCarloAuto, MonteCarloOnRequest)
 	}
 	switch u.Approach {
 	case "", ApproachBottomUp:
@@ -219,6 +225,9 @@ type BudgetContext struct {
 type MCRequest struct {
 	Draws int // 0: calib's default (at least 10⁵)
 	Seed  uint64
+	// Screen is why the check runs by itself (ScreenGUM's reason); empty
+	// when a request asked for it.
+	Screen string
 }
 
 // BudgetRecord is a result's uncertainty budget and conformity statement as
@@ -239,9 +248,12 @@ type BudgetRecord struct {
 	Terms            []BudgetTermOut `json:"terms"`
 	TopDown          *TopDownOut     `json:"top_down,omitempty"`
 	MonteCarlo       *MonteCarloOut  `json:"monte_carlo,omitempty"`
-	Conformity       *ConformityOut  `json:"conformity,omitempty"`
-	Notes            []string        `json:"notes"`
-	Cautions         []string        `json:"cautions"`
+	// ReportedInterval, set when a Monte Carlo check ran, says which
+	// coverage interval the result reports (absent: y ± U).
+	ReportedInterval *ReportedIntervalOut `json:"reported_interval,omitempty"`
+	Conformity       *ConformityOut       `json:"conformity,omitempty"`
+	Notes            []string             `json:"notes"`
+	Cautions         []string             `json:"cautions"`
 }
 
 // BudgetTermOut is one term of a budget with its share of u_c².
@@ -295,6 +307,10 @@ type MonteCarloOut struct {
 	GUMHigh   float64 `json:"gum_high"`
 	Tolerance float64 `json:"tolerance"`
 	Agrees    bool    `json:"agrees"`
+	// Trigger is MCTriggerRequested or MCTriggerScreened; Screen the
+	// screen's reason for the latter.
+	Trigger string `json:"trigger,omitempty"`
+	Screen  string `json:"screen,omitempty"`
 }
 
 // ConformityOut is the statement of conformity of a result.
@@ -355,7 +371,7 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 	if rec.Approach == "" {
 		rec.Approach = ApproachBottomUp
 	}
-	cal, err := rep.CalibrationTermOf("calibration: s(x̂0) from the curve", pr)
+	cal, err := rep.CalibrationTermOf(calibrationTermName, pr)
 	if err != nil || pr.Concentration == 0 {
 		return nil, nil // no single non-zero concentration: nothing to state U of (the flags say why)
 	}
@@ -366,40 +382,21 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 		switch t {
 		case TermStandards:
 			if bc.Standards == nil {
-				rec.Notes = append(rec.Notes, "The method asks for the standards' term, but the run named no standard material of this analyte: the term is left out.")
+				rec.Notes = append(rec.Notes, noteNoStandards)
 				continue
 			}
-			in.Terms = append(in.Terms, calib.UncertaintyTerm{Name: bc.Standards.Name, Source: calib.SourceStandard,
-				Kind: calib.DistNormal, Value: 1, StdUncertainty: bc.Standards.Relative, Group: bc.Standards.Group})
+			in.Terms = append(in.Terms, bc.Standards.term())
 		case TermPreparation:
-			for i, st := range spec.Preparation {
-				n := fmt.Sprintf("preparation step %d", i+1)
-				in.Terms = append(in.Terms,
-					calib.RectangularTerm(n+" aliquot", calib.SourcePreparation, 1, st.AliquotTolML/st.AliquotML),
-					calib.RectangularTerm(n+" final volume", calib.SourcePreparation, 1, st.FinalTolML/st.FinalML))
-			}
+			in.Terms = appendPreparationTerms(in.Terms, spec.Preparation)
 		case TermRepeatability:
-			if len(responses) < 2 {
-				rec.Notes = append(rec.Notes, "The method asks for the repeatability term, but the sample has one reading: the term is left out.")
-				continue
-			}
-			xs := make([]float64, 0, len(responses))
-			for _, y := range responses {
-				p, err := rep.Predict([]float64{y}, dilution, 0)
-				if err != nil || !p.HasEstimate() {
-					break
-				}
-				xs = append(xs, p.Concentration)
-			}
-			rt, err := calib.RepeatabilityFactor("repeatability of the sample's readings", xs)
-			if len(xs) < len(responses) || err != nil {
-				rec.Notes = append(rec.Notes, "A single reading of the sample gives no concentration: the repeatability term is left out.")
+			rt, note := repeatabilityTerm(rep, responses, dilution)
+			if note != "" {
+				rec.Notes = append(rec.Notes, note)
 				continue
 			}
 			in.Terms = append(in.Terms, rt)
 		case TermRecovery:
-			r := spec.Recovery
-			in.Terms = append(in.Terms, calib.RecoveryTerm("recovery (uncorrected)", r.Mean, r.StdUncertainty, r.DF, false))
+			in.Terms = append(in.Terms, spec.Recovery.term())
 		}
 	}
 	b, err := calib.ComputeBudget(in)
@@ -407,23 +404,13 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 		return nil, nil // e.g. a negative x̂0 with a factor model: the result states no budget
 	}
 	rec.fill(b)
-	// The terms' optional numbers point into one array, not one allocation each.
-	nums := make([]float64, 2*len(b.Terms))
-	ptr := func(k int, v float64) *float64 {
-		if !calib.Finite(v) {
-			return nil
-		}
-		nums[k] = v
-		return &nums[k]
+	rec.Terms = termsOut(b.Terms)
+	mc := bc.MonteCarlo
+	if mc == nil {
+		mc = autoMonteCarlo(rep, pr, responses, dilution, spec)
 	}
-	rec.Terms = make([]BudgetTermOut, len(b.Terms))
-	for i, t := range b.Terms {
-		rec.Terms[i] = BudgetTermOut{Name: t.Name, Source: string(t.Source), Distribution: string(t.Kind),
-			Value: t.Value, StdUncertainty: t.StdUncertainty, Relative: ptr(2*i, t.Relative), Coefficient: t.Coefficient,
-			Contribution: t.Contribution, Share: t.Share, DF: ptr(2*i+1, t.DF), Group: t.Group}
-	}
-	if bc.MonteCarlo != nil {
-		if err := rec.addMonteCarlo(in, &b, *bc.MonteCarlo); err != nil {
+	if mc != nil {
+		if err := rec.addMonteCarlo(in, &b, *mc); err != nil {
 			return nil, err
 		}
 	}
@@ -438,24 +425,26 @@ func ResultBudget(rep *calib.Report, pr calib.Prediction, responses []float64, d
 		rec.TopDown = &tdOut
 		if rec.Approach == ApproachTopDown || td.ExpandedExact > b.ExpandedExact {
 			rec.fill(td)
+			rec.ReportedInterval = nil
 			rec.Notes = append(rec.Notes, "U is the top-down estimate (k = 2); the bottom-up terms are shown for reference.")
 		}
 	}
 	if l := spec.Limits; l != nil {
-		s := calib.Specification{Unit: bc.Unit}
-		if l.Lower != nil {
-			s.Lower, s.HasLower = *l.Lower, true
+		s := l.specification(bc.Unit)
+		if ri := rec.ReportedInterval; ri != nil && ri.Method == ReportedMonteCarlo {
+			c, err := calib.DecideInterval(rec.Value, ri.Low, ri.High, s, calib.DecisionRule(l.Rule))
+			if err != nil {
+				return nil, err
+			}
+			rec.Conformity = conformityOut(l, bc.Unit, c, rec.ValueText, rec.ExpandedText)
+			rec.Conformity.Statement = IntervalStatement(c, rec.ValueText, ri)
+		} else {
+			c, err := calib.Decide(rec.Value, rec.Expanded, s, calib.DecisionRule(l.Rule))
+			if err != nil {
+				return nil, err
+			}
+			rec.Conformity = conformityOut(l, bc.Unit, c, rec.ValueText, rec.ExpandedText)
 		}
-		if l.Upper != nil {
-			s.Upper, s.HasUpper = *l.Upper, true
-		}
-		c, err := calib.Decide(rec.Value, rec.Expanded, s, calib.DecisionRule(l.Rule))
-		if err != nil {
-			return nil, err
-		}
-		rec.Conformity = &ConformityOut{Rule: l.Rule, Lower: l.Lower, Upper: l.Upper, Unit: bc.Unit,
-			AcceptLow: finiteOrNil(c.AcceptLow), AcceptHigh: finiteOrNil(c.AcceptHigh), Outcome: c.Outcome,
-			Accepted: c.Accepted, Risk: c.Risk, Statement: ConformityStatement(c, rec.ValueText, rec.ExpandedText)}
 	}
 	return rec, nil
 }
@@ -485,6 +474,99 @@ func topDownOf(rec *BudgetRecord, spec *UncertaintySpec, bc BudgetContext) (floa
 	return 0, TopDownOut{}
 }
 
+const (
+	calibrationTermName   = "calibration: s(x̂0) from the curve"
+	repeatabilityTermName = "repeatability of the sample's readings"
+	noteNoStandards       = "The method asks for the standards' term, but the run named no standard material of this analyte: the term is left out."
+	noteOneReading        = "The method asks for the repeatability term, but the sample has one reading: the term is left out."
+	noteNoReadingEstimate = "A single reading of the sample gives no concentration: the repeatability term is left out."
+)
+
+// term is the standards' term of a budget: a factor 1 with the materials'
+// relative u, normal, in the stock's correlation group.
+func (st *StandardsTerm) term() calib.UncertaintyTerm {
+	return calib.UncertaintyTerm{Name: st.Name, Source: calib.SourceStandard, Kind: calib.DistNormal, Value: 1,
+		StdUncertainty: st.Relative, Group: st.Group}
+}
+
+// appendPreparationTerms appends the terms of the method's preparation
+// steps: each volume a factor 1 with the rectangular relative u a/(√3·V).
+func appendPreparationTerms(dst []calib.UncertaintyTerm, steps []PrepStep) []calib.UncertaintyTerm {
+	for i, st := range steps {
+		n := "preparation step " + strconv.Itoa(i+1)
+		dst = append(dst,
+			calib.RectangularTerm(n+" aliquot", calib.SourcePreparation, 1, st.AliquotTolML/st.AliquotML),
+			calib.RectangularTerm(n+" final volume", calib.SourcePreparation, 1, st.FinalTolML/st.FinalML))
+	}
+	return dst
+}
+
+// repeatabilityTerm is the repeatability term of the readings, each
+// inverted on its own; or, when there is none, the note that says why.
+func repeatabilityTerm(rep *calib.Report, responses []float64, dilution float64) (calib.UncertaintyTerm, string) {
+	if len(responses) < 2 {
+		return calib.UncertaintyTerm{}, noteOneReading
+	}
+	xs := make([]float64, 0, len(responses))
+	for _, y := range responses {
+		p, err := rep.Predict([]float64{y}, dilution, 0)
+		if err != nil || !p.HasEstimate() {
+			break
+		}
+		xs = append(xs, p.Concentration)
+	}
+	rt, err := calib.RepeatabilityFactor(repeatabilityTermName, xs)
+	if len(xs) < len(responses) || err != nil {
+		return calib.UncertaintyTerm{}, noteNoReadingEstimate
+	}
+	return rt, ""
+}
+
+// term is the recovery term of a result not corrected for recovery.
+func (r *RecoverySpec) term() calib.UncertaintyTerm {
+	return calib.RecoveryTerm("recovery (uncorrected)", r.Mean, r.StdUncertainty, r.DF, false)
+}
+
+// specification is the calib form of the limits, in unit.
+func (l *SpecLimits) specification(unit string) calib.Specification {
+	s := calib.Specification{Unit: unit}
+	if l.Lower != nil {
+		s.Lower, s.HasLower = *l.Lower, true
+	}
+	if l.Upper != nil {
+		s.Upper, s.HasUpper = *l.Upper, true
+	}
+	return s
+}
+
+// termsOut returns the record's form of a budget's terms.
+func termsOut(ts []calib.TermResult) []BudgetTermOut {
+	// The terms' optional numbers point into one array, not one allocation each.
+	nums := make([]float64, 2*len(ts))
+	ptr := func(k int, v float64) *float64 {
+		if !calib.Finite(v) {
+			return nil
+		}
+		nums[k] = v
+		return &nums[k]
+	}
+	out := make([]BudgetTermOut, len(ts))
+	for i, t := range ts {
+		out[i] = BudgetTermOut{Name: t.Name, Source: string(t.Source), Distribution: string(t.Kind),
+			Value: t.Value, StdUncertainty: t.StdUncertainty, Relative: ptr(2*i, t.Relative), Coefficient: t.Coefficient,
+			Contribution: t.Contribution, Share: t.Share, DF: ptr(2*i+1, t.DF), Group: t.Group}
+	}
+	return out
+}
+
+// conformityOut returns the record's form of the conformity c with the
+// limits l in unit, of the result and U as texts.
+func conformityOut(l *SpecLimits, unit string, c calib.Conformity, value, expanded string) *ConformityOut {
+	return &ConformityOut{Rule: l.Rule, Lower: l.Lower, Upper: l.Upper, Unit: unit,
+		AcceptLow: finiteOrNil(c.AcceptLow), AcceptHigh: finiteOrNil(c.AcceptHigh), Outcome: c.Outcome,
+		Accepted: c.Accepted, Risk: c.Risk, Statement: ConformityStatement(c, value, expanded)}
+}
+
 // fill sets the record's reported figures from b.
 func (r *BudgetRecord) fill(b calib.Budget) {
 	r.Value, r.ValueText, r.Combined = b.Value, b.ValueText, b.Combined
@@ -496,19 +578,24 @@ func (r *BudgetRecord) fill(b calib.Budget) {
 // ConformityStatement words a conformity statement: the result with its U,
 // the limits, the rule and the outcome (the risk is worded apart, in Risk).
 func ConformityStatement(c calib.Conformity, value, expanded string) string {
+	return "Result " + value + " ± " + expanded + StatementMiddle(c.Spec, c.Rule) + c.Outcome + "."
+}
+
+// StatementMiddle is the part of a conformity statement between U and the
+// outcome: the unit, the limits and the rule.
+func StatementMiddle(spec calib.Specification, rule calib.DecisionRule) string {
 	lim := make([]string, 0, 2)
-	if c.Spec.HasLower {
-		lim = append(lim, "lower limit "+strconv.FormatFloat(c.Spec.Lower, 'g', -1, 64)+" "+c.Spec.Unit)
+	if spec.HasLower {
+		lim = append(lim, "lower limit "+strconv.FormatFloat(spec.Lower, 'g', -1, 64)+" "+spec.Unit)
 	}
-	if c.Spec.HasUpper {
-		lim = append(lim, "upper limit "+strconv.FormatFloat(c.Spec.Upper, 'g', -1, 64)+" "+c.Spec.Unit)
+	if spec.HasUpper {
+		lim = append(lim, "upper limit "+strconv.FormatFloat(spec.Upper, 'g', -1, 64)+" "+spec.Unit)
 	}
-	rule := "simple acceptance"
-	if c.Rule == calib.RuleGuardBand {
-		rule = "guard band w = U"
+	r := "simple acceptance"
+	if rule == calib.RuleGuardBand {
+		r = "guard band w = U"
 	}
-	return "Result " + value + " ± " + expanded + " " + c.Spec.Unit + " against the " + strings.Join(lim, " and ") +
-		" under " + rule + ": " + c.Outcome + "."
+	return " " + spec.Unit + " against the " + strings.Join(lim, " and ") + " under " + r + ": "
 }
 
 // addMonteCarlo adds the Monte Carlo check (JCGM 101) of the bottom-up
@@ -520,11 +607,15 @@ func (r *BudgetRecord) addMonteCarlo(in calib.BudgetInput, b *calib.Budget, req 
 		return err
 	}
 	out := &MonteCarloOut{Draws: mc.Draws, Discarded: mc.Discarded, Seed: mc.Seed, Level: mc.Level, Mean: mc.Mean, SD: mc.SD,
-		Low: mc.Low, High: mc.High, ShortLow: mc.ShortLow, ShortHigh: mc.ShortHigh}
+		Low: mc.Low, High: mc.High, ShortLow: mc.ShortLow, ShortHigh: mc.ShortHigh, Trigger: MCTriggerRequested}
+	if req.Screen != "" {
+		out.Trigger, out.Screen = MCTriggerScreened, req.Screen
+	}
 	if chk, err := calib.CompareGUMMC(*b, mc, 2); err == nil {
 		out.GUMLow, out.GUMHigh, out.Tolerance, out.Agrees = chk.GUMLow, chk.GUMHigh, chk.Delta, chk.Agree
 	}
 	r.MonteCarlo = out
+	r.ReportedInterval = reportedInterval(out, b)
 	if !out.Agrees {
 		r.Notes = append(r.Notes, "The Monte Carlo interval and y ± U differ by more than the numerical tolerance: the Monte Carlo interval is the better statement here (JCGM 101 §8.2).")
 	}

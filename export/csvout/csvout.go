@@ -25,7 +25,7 @@ import (
 
 // Header is the first row written by Write.
 var Header = []string{"sample_id", "analyte", "value", "unit", "expanded_uncertainty", "coverage_factor",
-	"coverage_level", "release_state", "flags", "conformity", "curve_id", "instrument", "observed_at", "caution"}
+	"coverage_level", "interval_method", "interval_low", "interval_high", "release_state", "flags", "conformity", "curve_id", "instrument", "observed_at", "caution"}
 
 // Result is one row. Numbers come as text, already formatted (e.g. the
 // value rounded to the place of its uncertainty), so the file shows what the
@@ -38,8 +38,12 @@ type Result struct {
 	ReleaseState          string
 	Flags                 []string // joined with ";"
 	Conformity            string   // e.g. "pass (guard_band_u)"
-	CurveID, Instrument   string
-	ObservedAt            time.Time // RFC 3339 in its own zone; zero: empty
+	// IntervalMethod ("gum" or "monte_carlo"), IntervalLow and IntervalHigh
+	// are the coverage interval the result reports once a Monte Carlo
+	// check ran; empty otherwise (y ± U).
+	IntervalMethod, IntervalLow, IntervalHigh string
+	CurveID, Instrument                       string
+	ObservedAt                                time.Time // RFC 3339 in its own zone; zero: empty
 }
 
 // Write writes Header and one row per result to w.
@@ -56,7 +60,7 @@ func Write(w io.Writer, results []Result) error {
 			obs = r.ObservedAt.Format(time.RFC3339)
 		}
 		copy(row, []string{r.SampleID, r.Analyte, r.Value, r.Unit, r.ExpandedUncertainty, r.CoverageFactor,
-			r.Level, r.ReleaseState, strings.Join(r.Flags, ";"), r.Conformity, r.CurveID, r.Instrument, obs, export.Caution})
+			r.Level, r.IntervalMethod, r.IntervalLow, r.IntervalHigh, r.ReleaseState, strings.Join(r.Flags, ";"), r.Conformity, r.CurveID, r.Instrument, obs, export.Caution})
 		for i := range row {
 			row[i] = Neutralise(row[i])
 		}
