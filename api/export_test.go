@@ -72,10 +72,15 @@ func TestRunResultsFormats(t *testing.T) {
 	if len(rows) != 3 || rows[0][0] != "sample_id" || rows[1][0] != "W-1" || rows[2][0] != "W-2" {
 		t.Fatalf("CSV rows %q", rows)
 	}
-	instrument := slices.Index(rows[0], "instrument")
+	// Columns keep their positions (new ones are appended): a LIMS may
+	// read them by index.
+	instrument := 11
+	if slices.Index(rows[0], "instrument") != instrument || slices.Index(rows[0], "caution") != 13 {
+		t.Errorf("CSV header %q moved a column", rows[0])
+	}
 	for i, row := range rows[1:] {
 		got, err := strconv.ParseFloat(row[2], 64)
-		if err != nil || got != *js.Results[i].Concentration || row[3] != "mg/L" || instrument < 0 || row[instrument] != "photometer-7" {
+		if err != nil || got != *js.Results[i].Concentration || row[3] != "mg/L" || row[instrument] != "photometer-7" {
 			t.Errorf("CSV row %d %q, want value %v mg/L from photometer-7", i, row, *js.Results[i].Concentration)
 		}
 	}

@@ -24,8 +24,13 @@ import (
 )
 
 // Header is the first row written by Write.
+//
+// Columns are only ever added at the end, so that a reader that takes
+// them by position keeps working: interval_method, interval_low and
+// interval_high came after caution.
 var Header = []string{"sample_id", "analyte", "value", "unit", "expanded_uncertainty", "coverage_factor",
-	"coverage_level", "interval_method", "interval_low", "interval_high", "release_state", "flags", "conformity", "curve_id", "instrument", "observed_at", "caution"}
+	"coverage_level", "release_state", "flags", "conformity", "curve_id", "instrument", "observed_at", "caution",
+	"interval_method", "interval_low", "interval_high"}
 
 // Result is one row. Numbers come as text, already formatted (e.g. the
 // value rounded to the place of its uncertainty), so the file shows what the
@@ -60,7 +65,8 @@ func Write(w io.Writer, results []Result) error {
 			obs = r.ObservedAt.Format(time.RFC3339)
 		}
 		copy(row, []string{r.SampleID, r.Analyte, r.Value, r.Unit, r.ExpandedUncertainty, r.CoverageFactor,
-			r.Level, r.IntervalMethod, r.IntervalLow, r.IntervalHigh, r.ReleaseState, strings.Join(r.Flags, ";"), r.Conformity, r.CurveID, r.Instrument, obs, export.Caution})
+			r.Level, r.ReleaseState, strings.Join(r.Flags, ";"), r.Conformity, r.CurveID, r.Instrument, obs, export.Caution,
+			r.IntervalMethod, r.IntervalLow, r.IntervalHigh})
 		for i := range row {
 			row[i] = Neutralise(row[i])
 		}
