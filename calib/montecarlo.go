@@ -26,7 +26,12 @@ const MaxMCDraws = 10_000_000
 // MCResult is the output of a Monte Carlo propagation (JCGM 101 §7).
 type MCResult struct {
 	Draws     int // M, the model evaluations used
-	Discarded int // evaluations that gave no finite value (a drawn slope of exactly 0), not in Draws
+	Discarded int // evaluations that gave no finite value (a drawn slope of exactly 0, a response beyond a drawn curve's asymptote), not in Draws
+	// Unbounded: more than (1 − p)/2 of all evaluations gave no value, so
+	// at least one end of the 100p % coverage interval lies where the model
+	// has none (beyond an asymptote): Low and High, from the finite values
+	// only, then understate the interval and must not be reported.
+	Unbounded bool
 	Seed      uint64
 	Level     float64 // coverage probability p
 	Estimate  float64 // y at the input estimates, for reference
@@ -112,6 +117,17 @@ func MonteCarlo(in BudgetInput, opt MCOptions) (MCResult, error) {
 	}
 	slices.Sort(ys)
 	res.Draws = m
+	if res.Discarded > 0 {
+		all := float64(m + res.Discarded)
+		res.Unbounded = float64(res.Discarded) > (1-in.Level)/2*all
+		msg := strconv.Itoa(res.Discarded) + " of " + strconv.Itoa(m+res.Discarded) + " Monte Carlo evaluations gave no finite value (for a calibration curve: the drawn response beyond the drawn curve's asymptote) and are left out of the statistics"
+		if res.Unbounded {
+			msg += "; they exceed (1 − p)/2 of the evaluations, so the coverage interval is open on that side and its finite ends must not be reported."
+		} else {
+			msg += "."
+		}
+		res.Cautions = append(res.Cautions, msg)
+	}
 	var sum float64
 	for _, y := range ys {
 		sum += y
@@ -162,7 +178,12 @@ type sampler struct {
 	chi   distuv.ChiSquared // for Type A with finite ν
 	curve *CurveDraw
 	l     [3]float64 // Cholesky factor of Cov(b0, b1): l00, l10, l11
-	group int        // index of the correlation group, −1 for none
+	// Of a non-linear curve: inv inverts it, lp is the lower Cholesky
+	// factor of Cov(β) (p×p row-major), z and beta are scratch.
+	inv       calibCurve
+	lp        []float64
+	z, betaSt []float64
+	group     int // index of the correlation group, −1 for none
 }
 
 func newSamplers(in *BudgetInput) ([]sampler, error) {
@@ -183,6 +204,20 @@ func newSamplers(in *BudgetInput) ([]sampler, error) {
 				c = &cc
 			}
 			l, ok := cholesky2(c.Cov)
+			if c.Params != nil {
+				s.inv = curveOf(c.Model)
+				p := len(c.Params)
+				var lp []float64
+				if s.inv != nil && s.inv.NumParams() == p && len(c.ParamCov) == p {
+					lp, ok = choleskyPSD(c.ParamCov)
+				} else {
+					ok = false
+				}
+				for _, v := range c.Params {
+					ok = ok && Finite(v)
+				}
+				s.lp, s.z, s.betaSt = lp, make([]float64, p), make([]float64, p)
+			}
 			bad := !ok || c.SDMeanY < 0
 			for _, v := range []float64{c.B0, c.B1, c.MeanY, c.SDMeanY, c.Dilution} {
 				bad = bad || math.IsNaN(v) || math.IsInf(v, 0)
@@ -225,6 +260,43 @@ func cholesky2(c [2][2]float64) ([3]float64, bool) {
 	return l, true
 }
 
+// choleskyPSD returns the lower Cholesky factor (row-major) of a small
+// symmetric positive semi-definite matrix; a zero pivot (a fixed
+// coefficient's zero row) gives a zero column. False when the matrix is not
+// square, not finite, not symmetric or not positive semi-definite.
+func choleskyPSD(c [][]float64) ([]float64, bool) {
+	p := len(c)
+	l := make([]float64, p*p)
+	for i := range p {
+		if len(c[i]) < p {
+			return nil, false
+		}
+		for j := 0; j <= i; j++ {
+			a, b := c[i][j], c[j][i]
+			if !Finite(a, b) || math.Abs(a-b) > 1e-9*math.Sqrt(math.Abs(c[i][i]*c[j][j])) {
+				return nil, false
+			}
+			s := a
+			for k := 0; k < j; k++ {
+				s -= l[i*p+k] * l[j*p+k]
+			}
+			if i == j {
+				if s < -1e-12*math.Abs(c[i][i]) {
+					return nil, false
+				}
+				l[i*p+i] = math.Sqrt(max(s, 0))
+				continue
+			}
+			if d := l[j*p+j]; d > 0 {
+				l[i*p+j] = s / d
+			} else if math.Abs(s) > 1e-12*math.Sqrt(math.Abs(c[i][i]*c[j][j])) {
+				return nil, false
+			}
+		}
+	}
+	return l, true
+}
+
 // variate draws the standardised variate of the sampler's kind: z for
 // normal, 2U − 1 for rectangular, t_ν for Type A (z when ν is infinite).
 func (s *sampler) variate(rng *rand.Rand) float64 {
@@ -245,6 +317,30 @@ func (s *sampler) variate(rng *rand.Rand) float64 {
 
 // draw draws the input quantity.
 func (s *sampler) draw(rng *rand.Rand) float64 {
+	if c := s.curve; c != nil && s.inv != nil {
+		w := 1.0
+		if c.DF > 0 {
+			s.chi.Src = rng
+			w = math.Sqrt(c.DF / s.chi.Rand())
+		}
+		p := len(c.Params)
+		for j := range s.z {
+			s.z[j] = w * rng.NormFloat64()
+		}
+		for i := range p {
+			v := c.Params[i]
+			for k := 0; k <= i; k++ {
+				v += s.lp[i*p+k] * s.z[k]
+			}
+			s.betaSt[i] = v
+		}
+		y0 := c.MeanY + c.SDMeanY*w*rng.NormFloat64()
+		x, _, ok := s.inv.invert(y0, s.betaSt)
+		if !ok {
+			return math.NaN() // beyond the drawn curve's asymptote: no concentration
+		}
+		return c.Dilution * x
+	}
 	if c := s.curve; c != nil {
 		z0, z1, z2 := rng.NormFloat64(), rng.NormFloat64(), rng.NormFloat64()
 		if c.DF > 0 {

@@ -109,6 +109,16 @@ type CurveDraw struct {
 	Dilution   float64       // 0 means 1
 	Readings   int           // m
 	ResidualSD float64       // s(y/x)
+	// Model, Params and ParamCov, set for a non-linear curve (4PL, 5PL,
+	// power, exponential) in place of B0, B1 and Cov: Monte Carlo then
+	// draws the coefficients β from N(β̂, Cov(β̂)) (fixed coefficients have
+	// zero rows) and ȳ0 as above, scaled together to the multivariate t
+	// when DF > 0, and inverts the drawn curve at the drawn ȳ0. A draw
+	// whose ȳ0 lies beyond the drawn curve's asymptote has no
+	// concentration and is counted in MCResult.Discarded.
+	Model    Model
+	Params   []float64
+	ParamCov [][]float64
 }
 
 // BudgetInput is a measurement model with its input terms.
@@ -272,8 +282,9 @@ func StandardTerms(name string, stock, expanded, k float64, steps []VolumeStep) 
 // times the dilution factor) and ν = n − p of the fit, with the Prediction
 // itself. For a straight line (with or without intercept) the term carries
 // a CurveDraw (with DF = n − p, so the multivariate t), so Monte Carlo
-// simulates the ratio x̂0 = (ȳ0 − b0)/b1; for a
-// quadratic Monte Carlo draws x̂0 from N(x̂0, u²).
+// simulates the ratio x̂0 = (ȳ0 − b0)/b1; for a non-linear curve it
+// carries the coefficients and their covariance, so Monte Carlo inverts
+// drawn curves; for a quadratic Monte Carlo draws x̂0 from N(x̂0, u²).
 //
 // A prediction without a concentration (no root, two roots) is an error.
 func (r *Report) CalibrationTerm(name string, responses []float64, dilution float64) (UncertaintyTerm, Prediction, error) {
@@ -306,6 +317,16 @@ func (r *Report) CalibrationTermOf(name string, pr Prediction) (UncertaintyTerm,
 			cd.Cov[1][1] = r.Covariance[0][0]
 		}
 		t.Curve = cd
+	}
+	if c := curveOf(r.Model); c != nil && r.Covariance != nil && pr.Dilution > 0 {
+		// A non-linear curve: Monte Carlo draws its coefficients and inverts
+		// it, so that the skew near an asymptote shows.
+		x0 := pr.Concentration / pr.Dilution
+		cv := r.newCurveVar(c, pr.Readings)
+		fx := c.Eval(x0, r.Coefficients, nil)
+		v := cv.varAt(x0, fx, make([]float64, len(r.Coefficients))) // s²/(m·w0): the curve's own term left out
+		t.Curve = &CurveDraw{DF: float64(r.DF), MeanY: pr.MeanResponse, Dilution: pr.Dilution, Readings: pr.Readings,
+			ResidualSD: r.ResidualSD, SDMeanY: math.Sqrt(v), Model: r.Model, Params: r.Coefficients, ParamCov: r.Covariance}
 	}
 	return t, nil
 }

@@ -615,6 +615,14 @@ func (r *BudgetRecord) addMonteCarlo(in calib.BudgetInput, b *calib.Budget, req 
 		out.GUMLow, out.GUMHigh, out.Tolerance, out.Agrees = chk.GUMLow, chk.GUMHigh, chk.Delta, chk.Agree
 	}
 	r.MonteCarlo = out
+	if mc.Unbounded {
+		// Beyond an asymptote the model has no value: there is no
+		// coverage interval to report at this level, and y ± U is not
+		// validated either.
+		out.Agrees = false
+		r.Notes = append(r.Notes, "More than (1 − p)/2 of the Monte Carlo draws give no concentration (the response lies near the curve's asymptote): no coverage interval can be stated at this level, and y ± U is not validated; a qualified person decides whether the result is reported.")
+		return nil
+	}
 	r.ReportedInterval = reportedInterval(out, b)
 	if !out.Agrees {
 		r.Notes = append(r.Notes, "The Monte Carlo interval and y ± U differ by more than the numerical tolerance: the Monte Carlo interval is the better statement here (JCGM 101 §8.2).")
