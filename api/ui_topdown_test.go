@@ -85,6 +85,11 @@ func TestBrowserTopDownFromHistory(t *testing.T) {
 		if budget := b.text(`#samples details.budget`); !strings.Contains(budget, "from the QC history of 6 recoveries and 2 reference-material results") {
 			t.Errorf("%d px: the result's budget does not name the history it took: %q", width, budget)
 		}
+		// U is the top-down one here: the footer must not read as the sum of
+		// the bottom-up terms listed above it.
+		if foot := b.text(`#samples details.budget tfoot`); !strings.Contains(foot, "Reported (top-down)") || !strings.Contains(foot, "shown for reference") {
+			t.Errorf("%d px: the budget's footer does not say U is the top-down estimate: %q", width, foot)
+		}
 		name := fmt.Sprintf("topdown-%dpx", width)
 		b.fitsWindow(name)
 		b.shot(name)
