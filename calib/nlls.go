@@ -1,6 +1,7 @@
 package calib
 
 import (
+	"fmt"
 	"math"
 	"sync"
 
@@ -123,7 +124,12 @@ type NLLSResult struct {
 // invariant to rescaling the parameters). λ starts at 1e-3 and follows
 // Nielsen's rule (1999): after a step with gain ratio ρ > 0 (actual over
 // predicted reduction) it is multiplied by max(1/3, 1 − (2ρ − 1)³), after a
-// rejected step by 2, 4, 8, …. The covariance at the solution is
+// rejected step by 2, 4, 8, …. A run that ends Singular or
+// IterationLimit is tried once more from the same start with λ starting at
+// 100 (short, gradient-like first steps; a poor start then does not run
+// onto a plateau: NIST's BoxBOD from its first start); the second try
+// replaces the first only when it converges, and its Criterion says so.
+// The covariance at the solution is
 // s²(JᵀWJ)⁻¹, s² = SS/(n − p_free), from the QR factor of √W·J with
 // unit-norm columns (never the normal equations).
 //
@@ -153,13 +159,41 @@ func solveNLLS(c Curve, x, lx, y, w []float64, opt NLLSOptions) (NLLSResult, err
 	if n <= k {
 		return NLLSResult{}, inputErr("points", "%d readings for %d free parameters", n, k)
 	}
+	res, err := solveFrom(c, x, lx, y, w, opt, k, nllsLambda0)
+	if err != nil || (res.Outcome != Singular && res.Outcome != IterationLimit) {
+		return res, err
+	}
+	// A second try from the same start with heavy initial damping: its
+	// first steps are short, gradient-like ones, which keep a poor start
+	// from running onto a plateau or along a valley. Only a converged
+	// second try replaces the first outcome.
+	again, err := solveFrom(c, x, lx, y, w, opt, k, nllsRetryLambda0)
+	if err != nil || again.Outcome != Converged {
+		return res, nil
+	}
+	again.Criterion += fmt.Sprintf(" (on a second try from the start with initial damping λ₀ = %g, after the first ended %s at iteration %d)",
+		nllsRetryLambda0, res.Outcome, res.Iterations)
+	again.Iterations += res.Iterations
+	return again, nil
+}
+
+// The initial damping of a solve, and of its second try after a first that
+// ended Singular or IterationLimit (see SolveNLLS).
+const (
+	nllsLambda0      = 1e-3
+	nllsRetryLambda0 = 1e2
+)
+
+// solveFrom is one Levenberg–Marquardt run from opt.Start with initial
+// damping lambda0.
+func solveFrom(c Curve, x, lx, y, w []float64, opt NLLSOptions, k int, lambda0 float64) (NLLSResult, error) {
 	s := newNLLSState(c, x, lx, y, w, opt, k)
 	defer s.release()
 	s.ss = s.residuals(s.beta, s.r, s.jfull)
 	if !s.useJacobian() {
 		return NLLSResult{}, inputErr("start", "the model or its Jacobian is not finite at the starting parameters")
 	}
-	res := s.iterate()
+	res := s.iterate(lambda0)
 	return s.finish(res), nil
 }
 
@@ -434,9 +468,9 @@ func (s *nllsState) useJacobian() bool {
 }
 
 // iterate runs the Levenberg–Marquardt loop and returns how it ended.
-func (s *nllsState) iterate() NLLSResult {
+func (s *nllsState) iterate(lambda0 float64) NLLSResult {
 	opt := s.opt
-	lambda, nu := 1e-3, 2.0
+	lambda, nu := lambda0, 2.0
 	g, delta := s.g, s.delta
 	var res NLLSResult
 	for it := 1; ; it++ {
