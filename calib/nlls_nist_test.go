@@ -213,7 +213,7 @@ func runNISTNonlinearWith(t *testing.T, file string, model Curve, maxIter [2]int
 					}
 				}
 				lSS := lre(res.SSR, d.ssr)
-				t.Logf("%s: %s (%s) after %d iterations; lowest parameter LRE %.1f, residual SS LRE %.1f, lowest SD LRE %.1f",
+				t.Logf("%s: %s (%s) after %d iterations; lowest parameter LRE %.1f, residual SS LRE %.1f, lowest SD LRE %.2f",
 					name, res.Outcome, res.Criterion, res.Iterations, minP, lSS, minSD)
 				if want, hard := nistHard[name]; hard && maxIter[s] == nistMaxIter || res.Outcome != Converged {
 					if res.Outcome != want {
