@@ -84,6 +84,12 @@ func demoImmunoRuns(end time.Time) []demoRun {
 	return runs
 }
 
+// demoImmunoUncertainty is marker-K's budget: the calibration term alone
+// (it already holds the wells' scatter through s²/m), bottom-up, with Monte
+// Carlo run by itself (the default `auto`) where the GUM linearisation is in
+// doubt, as towards the upper asymptote.
+var demoImmunoUncertainty = map[string]any{"terms": []string{lab.TermCalibration}}
+
 // demoImmunoPicks are the immunoassay curves the demo points to.
 type demoImmunoPicks struct {
 	good, saturated string
@@ -96,7 +102,7 @@ type demoImmunoPicks struct {
 func loadImmunoDemo(d *demoClient, tokens map[string]string, now func() time.Time) (demoImmunoPicks, error) {
 	var p demoImmunoPicks
 	m := demoMethod{Name: demoImmunoMethod, Model: "4pl", Weighting: "power_of_mean",
-		Analytes: []demoAnalyte{{Name: "marker-K", Unit: "pg/mL"}}}
+		Analytes: []demoAnalyte{{Name: "marker-K", Unit: "pg/mL", Uncertainty: demoImmunoUncertainty}}}
 	if err := d.do(tokens[lab.ScopeAdmin], http.MethodPost, "/v1/methods", m, nil); err != nil {
 		return p, err
 	}
@@ -136,5 +142,8 @@ func (p demoImmunoPicks) print(w *strings.Builder, base string) {
 		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" -H 'Content-Type: application/json' \\\n"+
 			"       -d '{\"samples\":[{\"id\":\"BRK-new-1\",\"responses\":[%.4g,%.4g]}]}' %s/v1/curves/%s/predictions\n",
 			demoImmunoResponse(60), demoImmunoResponse(60)*1.02, base, p.good)
+		fmt.Fprintf(w, "  # towards the upper asymptote the GUM's symmetric U misses the skew: Monte Carlo runs by itself and its interval is reported\n")
+		fmt.Fprintf(w, "  curl -s -H \"Authorization: Bearer $LIMS\" -H 'Content-Type: application/json' \\\n"+
+			"       -d '{\"samples\":[{\"id\":\"BRK-new-2\",\"responses\":[2.3,2.346]}]}' %s/v1/curves/%s/predictions\n", base, p.good)
 	}
 }
