@@ -2,18 +2,10 @@ package api_test
 
 import (
 	"bytes"
-	"fmt"
-	"io"
-	"log/slog"
 	"net/http"
-	"net/http/httptest"
 	"strings"
 	"testing"
 	"time"
-
-	"curvekeeper/api"
-	"curvekeeper/lab"
-	"curvekeeper/store/dbtest"
 )
 
 // BenchmarkPredictRouteBudget compares, side by side in one run, the
@@ -29,16 +21,7 @@ import (
 //
 //	go test ./api -run '^$' -bench PredictRouteBudget -benchtime 2000x
 func BenchmarkPredictRouteBudget(b *testing.B) {
-	db := dbtest.NewDB(b)
-	s, err := api.New(api.Config{RateLimit: -1}, lab.NewService(db, testClock), slog.New(slog.NewJSONHandler(io.Discard, nil)))
-	if err != nil {
-		b.Fatal(err)
-	}
-	e := &env{db: db, srv: httptest.NewServer(s.Handler()), admin: bootstrapSecret}
-	b.Cleanup(e.srv.Close)
-	if _, _, err := db.EnsureToken(b.Context(), "bootstrap-admin", bootstrapSecret, []string{"admin"}); err != nil {
-		b.Fatal(err)
-	}
+	e, h := newBenchServer(b)
 	e.method(b, "nitrate-plain", "nitrate")
 	e.budgetMethod(b, "nitrate-budget", map[string]any{"upper": 9.0, "rule": "guard_band_u"})
 	decode[struct{}](b, e.postJSON(b, e.admin, "/v1/standard-materials", map[string]any{
@@ -51,40 +34,16 @@ func BenchmarkPredictRouteBudget(b *testing.B) {
 	withBudget["standard_materials"] = []string{"CRM-BENCH"}
 	budget := e.run(b, e.admin, withBudget)
 	_, lims := e.token(b, "lims-bench", "results:read")
-	var body bytes.Buffer
-	body.WriteString(`{"samples":[`)
-	for i := range 10 {
-		y := 0.012 + 0.0481*(1+9.5*float64(i))
-		if i > 0 {
-			body.WriteByte(',')
-		}
-		fmt.Fprintf(&body, `{"id":"bench-sample-%d","responses":[%v,%v]}`, i+1, y*0.995, y*1.005)
-	}
-	body.WriteString(`]}`)
-	h := s.Handler()
-	// The recorder writes into one reused buffer, so that the harness's own
-	// copying of the (larger) budget answers is not counted as the route's.
-	var sink bytes.Buffer
-	send := func(curve string) *httptest.ResponseRecorder {
-		req := httptest.NewRequest(http.MethodPost, "/v1/curves/"+curve+"/predictions", bytes.NewReader(body.Bytes()))
-		req.Header.Set("Authorization", "Bearer "+lims)
-		req.Header.Set("Content-Type", "application/json")
-		w := httptest.NewRecorder()
-		sink.Reset()
-		w.Body = &sink
-		h.ServeHTTP(w, req)
-		if w.Code != http.StatusOK {
-			b.Fatalf("status %d: %s", w.Code, w.Body.String())
-		}
-		return w
-	}
+	send, sink := benchPredictSender(b, h, lims, benchPredictionBody())
 	// Warm both curves (curve, status and budget context cached) and check
 	// that only the budget curve answers with budgets.
-	plainLen := send(plain.Curves[0].ID.String()).Body.Len()
+	send(plain.Curves[0].ID.String())
+	plainLen := sink.Len()
 	if bytes.Contains(sink.Bytes(), []byte(`"uncertainty"`)) {
 		b.Fatal("the plain curve answered with a budget")
 	}
-	budgetAnswer := send(budget.Curves[0].ID.String()).Body.String()
+	send(budget.Curves[0].ID.String())
+	budgetAnswer := sink.String()
 	if !strings.Contains(budgetAnswer, `"conformity"`) {
 		b.Fatalf("the budget curve answered without a budget and conformity: %s", budgetAnswer)
 	}
@@ -94,22 +53,9 @@ func BenchmarkPredictRouteBudget(b *testing.B) {
 	if strings.Contains(budgetAnswer, `"monte_carlo"`) {
 		b.Fatalf("the benchmark's samples were screened for Monte Carlo: %s", budgetAnswer)
 	}
-	const rounds = 6
-	var cpu [2]int64
-	b.ResetTimer()
-	for range rounds {
-		for k, curve := range []string{plain.Curves[0].ID.String(), budget.Curves[0].ID.String()} {
-			c0 := processCPU()
-			for range b.N {
-				send(curve)
-			}
-			cpu[k] += processCPU() - c0
-		}
-	}
-	b.StopTimer()
-	n := float64(rounds * b.N)
-	b.ReportMetric(float64(cpu[0])/n, "plain-cpu-ns/op")
-	b.ReportMetric(float64(cpu[1])/n, "budget-cpu-ns/op")
-	b.ReportMetric(float64(cpu[1])/float64(cpu[0]), "budget/plain")
+	cpu := alternatingCPU(b, 6, send, plain.Curves[0].ID.String(), budget.Curves[0].ID.String())
+	b.ReportMetric(cpu[0], "plain-cpu-ns/op")
+	b.ReportMetric(cpu[1], "budget-cpu-ns/op")
+	b.ReportMetric(cpu[1]/cpu[0], "budget/plain")
 	b.ReportMetric(float64(len(budgetAnswer))/float64(plainLen), "body-budget/plain")
 }

@@ -27,36 +27,17 @@ import (
 //
 //	go test ./api -run '^$' -bench PredictRoute -benchmem -cpuprofile /tmp/predict.pprof
 func BenchmarkPredictRoute(b *testing.B) {
-	db := dbtest.NewDB(b)
-	s, err := api.New(api.Config{RateLimit: -1}, lab.NewService(db, testClock), slog.New(slog.NewJSONHandler(io.Discard, nil)))
-	if err != nil {
-		b.Fatal(err)
-	}
-	e := &env{db: db, srv: httptest.NewServer(s.Handler()), admin: bootstrapSecret}
-	b.Cleanup(e.srv.Close)
-	if _, _, err := db.EnsureToken(b.Context(), "bootstrap-admin", bootstrapSecret, []string{"admin"}); err != nil {
-		b.Fatal(err)
-	}
+	e, h := newBenchServer(b)
 	run := e.nitrateCurve(b)
 	_, lims := e.token(b, "lims-bench", "results:read")
-	var body bytes.Buffer
-	body.WriteString(`{"samples":[`)
-	for i := range 10 {
-		y := 0.012 + 0.0481*(1+9.5*float64(i))
-		if i > 0 {
-			body.WriteByte(',')
-		}
-		fmt.Fprintf(&body, `{"id":"bench-sample-%d","responses":[%v,%v]}`, i+1, y*0.995, y*1.005)
-	}
-	body.WriteString(`]}`)
+	body := benchPredictionBody()
 	path := "/v1/curves/" + run.Curves[0].ID.String() + "/predictions"
-	h := s.Handler()
 	b.ReportAllocs()
 	b.SetParallelism(32) // 64 requests in flight on 2 cores, as the harness's 64 connections
 	cpu0 := processCPU()
 	b.RunParallel(func(pb *testing.PB) {
 		for pb.Next() {
-			req := httptest.NewRequest(http.MethodPost, path, bytes.NewReader(body.Bytes()))
+			req := httptest.NewRequest(http.MethodPost, path, bytes.NewReader(body))
 			req.Header.Set("Authorization", "Bearer "+lims)
 			req.Header.Set("Content-Type", "application/json")
 			w := httptest.NewRecorder()
@@ -70,6 +51,84 @@ func BenchmarkPredictRoute(b *testing.B) {
 	// by other work on a shared machine than ns/op, and what bounds the
 	// service's throughput when the cores are saturated.
 	b.ReportMetric(float64(processCPU()-cpu0)/float64(b.N), "cpu-ns/op")
+}
+
+// newBenchServer starts a service (no rate limit, the test clock, a
+// discarded log) on a fresh database with the bootstrap admin token, and
+// returns its env and its handler, which the benchmarks call in process.
+func newBenchServer(b *testing.B) (*env, http.Handler) {
+	db := dbtest.NewDB(b)
+	s, err := api.New(api.Config{RateLimit: -1}, lab.NewService(db, testClock), slog.New(slog.NewJSONHandler(io.Discard, nil)))
+	if err != nil {
+		b.Fatal(err)
+	}
+	h := s.Handler()
+	e := &env{db: db, srv: httptest.NewServer(h), admin: bootstrapSecret}
+	b.Cleanup(e.srv.Close)
+	if _, _, err := db.EnsureToken(b.Context(), "bootstrap-admin", bootstrapSecret, []string{"admin"}); err != nil {
+		b.Fatal(err)
+	}
+	return e, h
+}
+
+// benchPredictionBody is the body of the harness's predict scenario: 10
+// nitrate samples in duplicate spread over the standards' range.
+func benchPredictionBody() []byte {
+	var body bytes.Buffer
+	body.WriteString(`{"samples":[`)
+	for i := range 10 {
+		y := 0.012 + 0.0481*(1+9.5*float64(i))
+		if i > 0 {
+			body.WriteByte(',')
+		}
+		fmt.Fprintf(&body, `{"id":"bench-sample-%d","responses":[%v,%v]}`, i+1, y*0.995, y*1.005)
+	}
+	body.WriteString(`]}`)
+	return body.Bytes()
+}
+
+// benchPredictSender returns a function that posts body to curve's
+// prediction route through h with token, writing the answer into one
+// reused buffer (so that copying large answers is not counted as the
+// route's work), and fails b on any status but 200; the buffer holds the
+// last answer.
+func benchPredictSender(b *testing.B, h http.Handler, token string, body []byte) (send func(curve string), last *bytes.Buffer) {
+	last = new(bytes.Buffer)
+	return func(curve string) {
+		req := httptest.NewRequest(http.MethodPost, "/v1/curves/"+curve+"/predictions", bytes.NewReader(body))
+		req.Header.Set("Authorization", "Bearer "+token)
+		req.Header.Set("Content-Type", "application/json")
+		w := httptest.NewRecorder()
+		last.Reset()
+		w.Body = last
+		h.ServeHTTP(w, req)
+		if w.Code != http.StatusOK {
+			b.Fatalf("status %d: %s", w.Code, w.Body.String())
+		}
+	}, last
+}
+
+// alternatingCPU sends b.N requests to each curve in turn, for rounds
+// rounds, and returns this process's CPU time per request of each, so
+// that drift of the shared machine falls on both sides.
+func alternatingCPU(b *testing.B, rounds int, send func(curve string), curves ...string) []float64 {
+	cpu := make([]int64, len(curves))
+	b.ResetTimer()
+	for range rounds {
+		for k, curve := range curves {
+			c0 := processCPU()
+			for range b.N {
+				send(curve)
+			}
+			cpu[k] += processCPU() - c0
+		}
+	}
+	b.StopTimer()
+	out := make([]float64, len(curves))
+	for k := range cpu {
+		out[k] = float64(cpu[k]) / float64(rounds*b.N)
+	}
+	return out
 }
 
 // processCPU is the user + system CPU time this process has used, in ns.
@@ -90,16 +149,7 @@ func processCPU() int64 {
 //
 //	go test ./api -run '^$' -bench IngestRoute -benchmem -benchtime 2000x
 func BenchmarkIngestRoute(b *testing.B) {
-	db := dbtest.NewDB(b)
-	s, err := api.New(api.Config{RateLimit: -1}, lab.NewService(db, testClock), slog.New(slog.NewJSONHandler(io.Discard, nil)))
-	if err != nil {
-		b.Fatal(err)
-	}
-	e := &env{db: db, srv: httptest.NewServer(s.Handler()), admin: bootstrapSecret}
-	b.Cleanup(e.srv.Close)
-	if _, _, err := db.EnsureToken(b.Context(), "bootstrap-admin", bootstrapSecret, []string{"admin"}); err != nil {
-		b.Fatal(err)
-	}
+	e, h := newBenchServer(b)
 	e.method(b, "nitrate-uv", "nitrate")
 	_, inst := e.token(b, "photometer-bench", "runs:write")
 	const runs = 4096
@@ -108,7 +158,6 @@ func BenchmarkIngestRoute(b *testing.B) {
 		bodies[i] = mustJSON(b, runBody("nitrate-uv", fmt.Sprintf("photometer-%d", i%8),
 			baseTime.Add(time.Duration(i)*time.Second), standards("nitrate", uint64(i))))
 	}
-	h := s.Handler()
 	var seq atomic.Int64
 	b.ReportAllocs()
 	b.SetParallelism(8) // 16 in flight on 2 cores

@@ -1,19 +1,10 @@
 package api_test
 
 import (
-	"bytes"
-	"fmt"
-	"io"
-	"log/slog"
 	"net/http"
-	"net/http/httptest"
 	"strings"
 	"testing"
 	"time"
-
-	"curvekeeper/api"
-	"curvekeeper/lab"
-	"curvekeeper/store/dbtest"
 )
 
 // BenchmarkPredictRouteTopDown compares, side by side in one run, the
@@ -27,16 +18,7 @@ import (
 //
 //	go test ./api -run '^$' -bench PredictRouteTopDown -benchtime 2000x
 func BenchmarkPredictRouteTopDown(b *testing.B) {
-	db := dbtest.NewDB(b)
-	s, err := api.New(api.Config{RateLimit: -1}, lab.NewService(db, testClock), slog.New(slog.NewJSONHandler(io.Discard, nil)))
-	if err != nil {
-		b.Fatal(err)
-	}
-	e := &env{db: db, srv: httptest.NewServer(s.Handler()), admin: bootstrapSecret}
-	b.Cleanup(e.srv.Close)
-	if _, _, err := db.EnsureToken(b.Context(), "bootstrap-admin", bootstrapSecret, []string{"admin"}); err != nil {
-		b.Fatal(err)
-	}
+	e, h := newBenchServer(b)
 	at := time.Date(2031, 6, 1, 8, 0, 0, 0, time.UTC) // in the year before testNow
 	curves := map[string]string{}
 	for _, k := range []string{"stated", "history"} {
@@ -60,30 +42,7 @@ func BenchmarkPredictRouteTopDown(b *testing.B) {
 		decode[struct{}](b, e.postJSON(b, e.admin, "/v1/curves/"+curves["history"]+"/verifications", v), http.StatusCreated)
 	}
 	_, lims := e.token(b, "lims-bench", "results:read")
-	var body bytes.Buffer
-	body.WriteString(`{"samples":[`)
-	for i := range 10 {
-		y := 0.012 + 0.0481*(1+9.5*float64(i))
-		if i > 0 {
-			body.WriteByte(',')
-		}
-		fmt.Fprintf(&body, `{"id":"bench-sample-%d","responses":[%v,%v]}`, i+1, y*0.995, y*1.005)
-	}
-	body.WriteString(`]}`)
-	h := s.Handler()
-	var sink bytes.Buffer
-	send := func(curve string) {
-		req := httptest.NewRequest(http.MethodPost, "/v1/curves/"+curve+"/predictions", bytes.NewReader(body.Bytes()))
-		req.Header.Set("Authorization", "Bearer "+lims)
-		req.Header.Set("Content-Type", "application/json")
-		w := httptest.NewRecorder()
-		sink.Reset()
-		w.Body = &sink
-		h.ServeHTTP(w, req)
-		if w.Code != http.StatusOK {
-			b.Fatalf("status %d: %s", w.Code, w.Body.String())
-		}
-	}
+	send, sink := benchPredictSender(b, h, lims, benchPredictionBody())
 	// Warm both (curve, status, budget context and the history cached) and
 	// check each answers from its source.
 	for k, curve := range curves {
@@ -92,21 +51,8 @@ func BenchmarkPredictRouteTopDown(b *testing.B) {
 			b.Fatalf("%s curve: the answer lacks %s: %s", k, want, sink.String())
 		}
 	}
-	const rounds = 6
-	var cpu [2]int64
-	b.ResetTimer()
-	for range rounds {
-		for k, kind := range []string{"stated", "history"} {
-			c0 := processCPU()
-			for range b.N {
-				send(curves[kind])
-			}
-			cpu[k] += processCPU() - c0
-		}
-	}
-	b.StopTimer()
-	n := float64(rounds * b.N)
-	b.ReportMetric(float64(cpu[0])/n, "stated-cpu-ns/op")
-	b.ReportMetric(float64(cpu[1])/n, "history-cpu-ns/op")
-	b.ReportMetric(float64(cpu[1])/float64(cpu[0]), "history/stated")
+	cpu := alternatingCPU(b, 6, send, curves["stated"], curves["history"])
+	b.ReportMetric(cpu[0], "stated-cpu-ns/op")
+	b.ReportMetric(cpu[1], "history-cpu-ns/op")
+	b.ReportMetric(cpu[1]/cpu[0], "history/stated")
 }

@@ -239,25 +239,14 @@ func newSamplers(in *BudgetInput) ([]sampler, error) {
 }
 
 // cholesky2 returns the lower Cholesky factor (l00, l10, l11) of a 2×2
-// positive semi-definite matrix; a zero variance gives a zero row.
+// positive semi-definite matrix (choleskyPSD); a zero variance gives a zero
+// row.
 func cholesky2(c [2][2]float64) ([3]float64, bool) {
-	a, b, d := c[0][0], c[0][1], c[1][1]
-	if a < 0 || d < 0 || math.Abs(c[0][1]-c[1][0]) > 1e-9*math.Max(math.Abs(b), math.Sqrt(a*d)) {
+	l, ok := choleskyPSD([][]float64{c[0][:], c[1][:]})
+	if !ok {
 		return [3]float64{}, false
 	}
-	var l [3]float64
-	l[0] = math.Sqrt(a)
-	if l[0] > 0 {
-		l[1] = b / l[0]
-	} else if b != 0 {
-		return l, false
-	}
-	r := d - l[1]*l[1]
-	if r < -1e-12*d {
-		return l, false
-	}
-	l[2] = math.Sqrt(max(r, 0))
-	return l, true
+	return [3]float64{l[0], l[2], l[3]}, true
 }
 
 // choleskyPSD returns the lower Cholesky factor (row-major) of a small
