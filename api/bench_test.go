@@ -155,7 +155,7 @@ func BenchmarkIngestRoute(b *testing.B) {
 	const runs = 4096
 	bodies := make([][]byte, runs)
 	for i := range bodies {
-		bodies[i] = mustJSON(b, runBody("nitrate-uv", fmt.Sprintf("photometer-%d", i%8),
+		bodies[i] = mustJSON(b, runBody("nitrate-uv", testInstruments[i%len(testInstruments)],
 			baseTime.Add(time.Duration(i)*time.Second), standards("nitrate", uint64(i))))
 	}
 	var seq atomic.Int64
