@@ -373,13 +373,23 @@ func equationText(r *calib.Report) string {
 }
 
 func (s *Pages) uiCurvePage(c echo.Context) error {
-	v, err := s.curveView(c, c.Param("id"))
+	return s.renderCurve(c, c.Param("id"), func(v *curveView) int {
+		v.Done = map[string]string{"approve": "approved", "reject": "rejected"}[c.QueryParam("reviewed")]
+		v.Excluded = c.QueryParam("excluded") == "1"
+		return http.StatusOK
+	})
+}
+
+// renderCurve renders the curve page of id; set fills what the request
+// adds to the view (a form's refusal, a done message) and returns the
+// status to answer with.
+func (s *Pages) renderCurve(c echo.Context, id string, set func(v *curveView) int) error {
+	v, err := s.curveView(c, id)
 	if err != nil {
 		return s.Fail(c, err)
 	}
-	v.Done = map[string]string{"approve": "approved", "reject": "rejected"}[c.QueryParam("reviewed")]
-	v.Excluded = c.QueryParam("excluded") == "1"
-	return s.render(c, http.StatusOK, "curve", pageData{Title: v.Curve.Instrument + " · " + v.Curve.Analyte, Nav: "curves", Data: v})
+	status := set(v)
+	return s.render(c, status, "curve", pageData{Title: v.Curve.Instrument + " · " + v.Curve.Analyte, Nav: "curves", Data: v})
 }
 
 func (s *Pages) uiCurvePlot(c echo.Context) error {
@@ -416,16 +426,13 @@ func (s *Pages) uiReview(c echo.Context) error {
 		}
 		problem = msg
 	}
-	v, err := s.curveView(c, id)
-	if err != nil {
-		return s.Fail(c, err)
-	}
-	v.Problem, v.Reason = problem, reason
-	status := http.StatusUnprocessableEntity
-	if v.Curve.Status != lab.StatusPendingReview {
-		status = http.StatusConflict
-	}
-	return s.render(c, status, "curve", pageData{Title: v.Curve.Instrument + " · " + v.Curve.Analyte, Nav: "curves", Data: v})
+	return s.renderCurve(c, id, func(v *curveView) int {
+		v.Problem, v.Reason = problem, reason
+		if v.Curve.Status != lab.StatusPendingReview {
+			return http.StatusConflict
+		}
+		return http.StatusUnprocessableEntity
+	})
 }
 
 // trendView is the trend page.

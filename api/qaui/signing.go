@@ -84,10 +84,8 @@ func (s *Pages) uiSign(c echo.Context) error {
 		}
 		problem = msg
 	}
-	v, err := s.curveView(c, id)
-	if err != nil {
-		return s.Fail(c, err)
-	}
-	v.Signing.Problem, v.Reason = problem, reason
-	return s.render(c, http.StatusUnprocessableEntity, "curve", pageData{Title: v.Curve.Instrument + " · " + v.Curve.Analyte, Nav: "curves", Data: v})
+	return s.renderCurve(c, id, func(v *curveView) int {
+		v.Signing.Problem, v.Reason = problem, reason
+		return http.StatusUnprocessableEntity
+	})
 }
