@@ -113,7 +113,8 @@ func FitCurve(x, y, w []float64, opt CurveOptions) (*CurveFit, error) {
 	for j := range opt.Fixed {
 		fixed[j] = !math.IsNaN(opt.Fixed[j])
 	}
-	start, err := selfStart(opt.Model, x, lx, y, wn, opt, lower, upper)
+	rep := groupReplicates(x, lx, y, wn)
+	start, err := selfStart(opt.Model, x, lx, y, wn, opt, lower, upper, rep)
 	if err != nil {
 		return nil, err
 	}
@@ -128,7 +129,7 @@ func FitCurve(x, y, w []float64, opt CurveOptions) (*CurveFit, error) {
 			return nil, inputErr("options.start", "coefficient %d: %v lies outside its bounds [%v, %v]", j, start[j], lower[j], upper[j])
 		}
 	}
-	res, err := solveNLLS(c, x, lx, y, wn, NLLSOptions{Start: start, Fixed: fixed, Lower: lower, Upper: upper, MaxIter: opt.MaxIter})
+	res, err := solveNLLS(c, x, lx, y, wn, NLLSOptions{Start: start, Fixed: fixed, Lower: lower, Upper: upper, MaxIter: opt.MaxIter}, rep)
 	if err != nil {
 		return nil, err
 	}

@@ -49,8 +49,14 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 		}
 		return t*math.Sqrt(v) - math.Abs(fx-y0)
 	}
-	gap := func(x float64) float64 {
-		fx, v, _ := cv.at(x)
+	// gap in u = ln x (−Inf for x = 0): a logistic is evaluated from
+	// ln(x/c) = u − ln c, with no logarithm or exponential of x.
+	gap := func(u float64) float64 {
+		if cv.logistic && !math.IsInf(u, -1) {
+			fx, v, _ := cv.atLogU(u - cv.lnc)
+			return gapOf(fx, v)
+		}
+		fx, v, _ := cv.at(math.Exp(u))
 		return gapOf(fx, v)
 	}
 	g0 := gapOf(f0, v0)
@@ -85,70 +91,73 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 // both ends), bisecting when an interpolated point is not finite or not
 // inside the bracket and stepping inside by edgeStep from an end it
 // would land next to; +Inf going up and 0 going down when the band never
-// closes.
+// closes. gap takes u = ln x (−Inf for x = 0): the walk and the
+// refinement both work in u, and x is computed once, at the end.
 func (r *Report) bandEdge(gap func(float64) float64, x0, g0 float64, dir int, step float64) float64 {
-	lim := r.Range.High * 1e6
+	lim := math.Log(r.Range.High * 1e6)
 	if dir < 0 {
-		lim = r.Range.Low * 1e-6
+		lim = math.Log(r.Range.Low * 1e-6)
 		if x0 <= 0 {
 			return 0
 		}
 	}
-	in, x := x0, x0
+	ui := math.Log(x0)
+	u := ui
 	gin := g0
 	var gout float64
-	f := math.Pow(step, float64(dir))
+	du := float64(dir) * math.Log(step)
+	zero := false // the walk went below lim: the outer end is x = 0
 	for range 4000 {
-		x *= f
-		if (dir > 0 && x > lim) || (dir < 0 && x < lim) {
+		u += du
+		if (dir > 0 && u > lim) || (dir < 0 && u < lim) {
 			if dir > 0 {
 				return math.Inf(1)
 			}
-			if gap(0) >= 0 {
+			if gap(math.Inf(-1)) >= 0 {
 				return 0
 			}
-			x = 0
+			zero = true
 			break
 		}
-		gout = gap(x)
+		gout = gap(u)
 		if !(gout >= 0) {
 			break
 		}
-		in, gin = x, gout
+		ui, gin = u, gout
 	}
-	out := x
-	if out == 0 {
-		// The band closes between 0 and in: bisect towards 0 in x
-		// until a point outside has x > 0, then refine in log x.
+	uo := u
+	if zero {
+		// The band closes between 0 and e^ui: halve x towards 0 until a
+		// point outside has x > 0, then refine in log x.
+		found := false
 		for range 200 {
-			mid := in / 2
-			if mid == 0 {
-				return in
+			mid := ui - math.Ln2
+			if math.Exp(mid) == 0 {
+				return math.Exp(ui)
 			}
 			g := gap(mid)
 			if g >= 0 {
-				in, gin = mid, g
+				ui, gin = mid, g
 				continue
 			}
-			out, gout = mid, g
+			uo, gout, found = mid, g, true
 			break
 		}
-		if out == 0 {
-			return in
+		if !found {
+			return math.Exp(ui)
 		}
 	}
-	// Regula falsi in u = ln x on [in, out], gap(in) ≥ 0 > gap(out). An
-	// infinite gap outside is replaced by bisection.
-	ui, uo := math.Log(in), math.Log(out)
+	// Regula falsi in u on [ui, uo], gap(ui) ≥ 0 > gap(uo). An infinite
+	// gap outside is replaced by bisection.
 	side := 0
 	for range 200 {
-		if math.Abs(out-in) <= 1e-13*in {
+		if math.Abs(uo-ui) <= 1e-13 {
 			break
 		}
 		um := 0.5 * (ui + uo)
 		if Finite(gin, gout) && gin != gout {
-			if u := ui + (uo-ui)*gin/(gin-gout); u > min(ui, uo) && u < max(ui, uo) {
-				um = u
+			if v := ui + (uo-ui)*gin/(gin-gout); v > min(ui, uo) && v < max(ui, uo) {
+				um = v
 			}
 			// A point within edgeStep of an end moves inside by edgeStep
 			// (Brent's safeguard): once an end lies next to the crossing,
@@ -164,30 +173,25 @@ func (r *Report) bandEdge(gap func(float64) float64, x0, g0 float64, dir int, st
 				}
 			}
 		}
-		xm := math.Exp(um)
-		if !(xm > min(in, out) && xm < max(in, out)) {
-			xm = math.Sqrt(in * out)
-			um = math.Log(xm)
-			if !(xm > min(in, out) && xm < max(in, out)) {
-				break
-			}
+		if !(um > min(ui, uo) && um < max(ui, uo)) {
+			break
 		}
-		g := gap(xm)
+		g := gap(um)
 		if g >= 0 {
-			in, ui, gin = xm, um, g
+			ui, gin = um, g
 			if side == -1 {
 				gout /= 2 // Illinois: the end that stays loses half its weight
 			}
 			side = -1
 		} else {
-			out, uo, gout = xm, um, g
+			uo, gout = um, g
 			if side == 1 {
 				gin /= 2
 			}
 			side = 1
 		}
 	}
-	return in
+	return math.Exp(ui)
 }
 
 // edgeStep is the safeguard step of bandEdge in ln x: 0.4 of its

@@ -840,31 +840,54 @@ func (cv *curveVar) at(x float64) (fx, v, slope float64) {
 		return cv.atU(logU(x, cv.beta[2]), x)
 	}
 	fx, slope = cv.c.evalSlope(x, cv.beta, cv.grad)
-	return fx, cv.varAt(x, fx, cv.grad), slope
+	return fx, cv.varAt(fx, cv.grad), slope
 }
 
 // atU is at for a logistic at x > 0 given u = ln(x/c).
 func (cv *curveVar) atU(u, x float64) (fx, v, slope float64) {
+	fx, v, hl := cv.atLogU(u)
+	return fx, v, cv.slopeOf(hl, x)
+}
+
+// atLogU is f and the variance of a logistic at x > 0 given u = ln(x/c)
+// alone (x itself enters only the slope), and h·L, from which slopeOf
+// gives the slope.
+func (cv *curveVar) atLogU(u float64) (fx, v, hl float64) {
 	if !cv.five {
-		// The 4PL written out (evalU and evalSlope with g = 1).
-		a, b, c, d := cv.beta[0], cv.beta[1], cv.beta[2], cv.beta[3]
-		h, lg, _ := core4(b * u)
-		k := (a - d) * h * lg
-		g := [4]float64{h, -k * u, k * b / c, lg}
-		fx = d + (a-d)*h
-		return fx, cv.varAt(x, fx, g[:]), -(a - d) * (h * lg) * b / x
+		h, lg, _ := core4(cv.beta[1] * u)
+		fx, v = cv.fv4(h, lg, u)
+		return fx, v, h * lg
 	}
 	l := logistic{five: true}
 	var ga [5]float64
 	g := ga[:l.NumParams()]
-	fx, hl := l.evalU(u, cv.beta, g)
-	slope = -(cv.beta[0] - cv.beta[3]) * l.g(cv.beta) * hl * cv.beta[1] / x
-	return fx, cv.varAt(x, fx, g), slope
+	fx, hl = l.evalU(u, cv.beta, g)
+	return fx, cv.varAt(fx, g), hl
 }
 
-// varAt is the variance given fx = f(x) and g = ∇βf(x).
-func (cv *curveVar) varAt(x, fx float64, g []float64) float64 {
-	w0 := cv.r.WeightScale * cv.r.rawWeightAt(x, fx, fx)
+// slopeOf is a logistic's slope f′(x) = −(a − d)·g·h·L·b/x given hl = h·L.
+func (cv *curveVar) slopeOf(hl, x float64) float64 {
+	g := 1.0
+	if cv.five {
+		g = cv.beta[4]
+	}
+	return -(cv.beta[0] - cv.beta[3]) * g * hl * cv.beta[1] / x
+}
+
+// fv4 is f and the variance of the 4PL given h = 1/(1 + eᵗ) and L = 1 − h
+// at t = b·u (evalU with g = 1 written out).
+func (cv *curveVar) fv4(h, lg, u float64) (fx, v float64) {
+	a, b, c, d := cv.beta[0], cv.beta[1], cv.beta[2], cv.beta[3]
+	k := (a - d) * h * lg
+	g := [4]float64{h, -k * u, k * b / c, lg}
+	fx = d + (a-d)*h
+	return fx, cv.varAt(fx, g[:])
+}
+
+// varAt is the variance given fx = f(x) and g = ∇βf(x) (the weight of an
+// unknown depends on x only through f(x); a NaN fx gives a NaN variance).
+func (cv *curveVar) varAt(fx float64, g []float64) float64 {
+	w0 := cv.r.WeightScale * cv.r.rawWeightAt(math.NaN(), fx, fx)
 	if cv.s2n != 0 {
 		w0 *= cv.s2n
 	}
@@ -938,17 +961,47 @@ func (r *Report) profile(levels []*curveLevel, cd *CurveDetails) {
 	lo, hi := math.Log(r.Range.Low), math.Log(r.Range.High)
 	cd.Profile = make([]ProfilePoint, n)
 	bestA, bestB, a := -1, -1, -1
+	// For the 4PL the grid's x and e^(b·ln(x/c)) are geometric sequences:
+	// each point multiplies the one before by e^Δ and e^(b·Δ) (Δ the step
+	// in ln x) instead of evaluating two exponentials. The products drift
+	// from the exact values by a few units in the last place over the 33
+	// points, far below the precision of a CV. Used when e^(b·ln(x/c))
+	// stays well inside the floating-point range at both ends.
+	dt := (hi - lo) / float64(n-1)
+	var xq, eq, xi, ei float64
+	geo := cv.logistic && !cv.five
+	if geo {
+		b := cv.beta[1]
+		ei, xi = math.Exp(b*(lo-cv.lnc)), r.Range.Low
+		eEnd := math.Exp(b * (hi - cv.lnc))
+		xq, eq = math.Exp(dt), math.Exp(b*dt)
+		geo = min(ei, eEnd) > 1e-280 && max(ei, eEnd) < 1e280
+	}
 	for i := range n {
 		t := lo + (hi-lo)*float64(i)/float64(n-1)
-		x := math.Exp(t)
-		if i == n-1 {
-			x, t = r.Range.High, hi
-		}
-		var v, sl float64
-		if cv.logistic {
+		var x, v, sl float64
+		switch {
+		case geo:
+			x = xi
+			if i == n-1 {
+				x, t = r.Range.High, hi
+			}
+			h := 1 / (1 + ei)
+			_, v = cv.fv4(h, ei*h, t-cv.lnc)
+			sl = cv.slopeOf(ei*h*h, x)
+			xi, ei = xi*xq, ei*eq
+		case cv.logistic:
+			x = math.Exp(t)
+			if i == n-1 {
+				x, t = r.Range.High, hi
+			}
 			// ln(x/c) = t − ln c: the grid is even in ln x.
 			_, v, sl = cv.atU(t-cv.lnc, x)
-		} else {
+		default:
+			x = math.Exp(t)
+			if i == n-1 {
+				x = r.Range.High
+			}
 			_, v, sl = cv.at(x)
 		}
 		se := math.Sqrt(v) / math.Abs(sl)

@@ -170,3 +170,39 @@ func TestCurveReportPowerOfMean(t *testing.T) {
 		t.Fatal(err)
 	}
 }
+
+// TestCurveProfileMatchesPrediction: each point of the precision profile
+// (whose 4PL grid walks geometric sequences instead of evaluating
+// exponentials) is the CV of the delta-method standard error that Predict
+// reports, through its own evaluation of the curve, for the mean of
+// Replicates readings at the curve's response there; the grid's x are
+// e^(ln x_low + i·Δ) to rounding.
+func TestCurveProfileMatchesPrediction(t *testing.T) {
+	for _, m := range []Model{FourPL, FivePL} {
+		r, err := Fit(elisaPoints(), Options{Model: m, Weighting: WeightInvY2})
+		if err != nil {
+			t.Fatal(err)
+		}
+		cd := r.Curve
+		c := curveOf(m)
+		lo, hi := math.Log(r.Range.Low), math.Log(r.Range.High)
+		for i, pp := range cd.Profile {
+			want := math.Exp(lo + (hi-lo)*float64(i)/float64(len(cd.Profile)-1))
+			if !closeTo(pp.X, want, 1e-13, 0) {
+				t.Errorf("%s point %d: x %v, want %v", m, i, pp.X, want)
+			}
+			y := c.Eval(pp.X, r.Coefficients, nil)
+			ys := make([]float64, cd.Replicates)
+			for k := range ys {
+				ys[k] = y
+			}
+			pr, err := r.Predict(ys, 1, 0)
+			if err != nil || !pp.OK {
+				t.Fatalf("%s point %d: %v (ok %v)", m, i, err, pp.OK)
+			}
+			if cv := 100 * pr.StandardError / pr.Concentration; !closeTo(pp.CVPct, cv, 1e-9, 0) {
+				t.Errorf("%s point %d (x = %v): profile CV %v %%, prediction %v %%", m, i, pp.X, pp.CVPct, cv)
+			}
+		}
+	}
+}

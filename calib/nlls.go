@@ -133,18 +133,25 @@ type NLLSResult struct {
 // s²(JᵀWJ)⁻¹, s² = SS/(n − p_free), from the QR factor of √W·J with
 // unit-norm columns (never the normal equations).
 //
+// Readings that share an x are fitted as one row per distinct x, with
+// their summed weight at their weighted mean response, and their
+// pure-error sum of squares added back wherever the whole sum counts (see
+// replicates): the same problem with fewer rows to evaluate and
+// factorise.
+//
 // Preconditions (an *InputError otherwise): len(x) = len(y) = n, w nil
 // (unit weights) or n positive finite weights, finite data, n greater than
 // the number of free parameters, a finite model and Jacobian at Start.
 // Every other ending is a typed Outcome, never an error: the caller reads
 // Outcome before using the parameters.
 func SolveNLLS(c Curve, x, y, w []float64, opt NLLSOptions) (NLLSResult, error) {
-	return solveNLLS(c, x, nil, y, w, opt)
+	return solveNLLS(c, x, nil, y, w, opt, nil)
 }
 
 // solveNLLS is SolveNLLS given lx[i] = ln x[i] (nil: computed here when
-// the curve evaluates in batches).
-func solveNLLS(c Curve, x, lx, y, w []float64, opt NLLSOptions) (NLLSResult, error) {
+// the curve evaluates in batches) and the readings' replicates (nil:
+// grouped here).
+func solveNLLS(c Curve, x, lx, y, w []float64, opt NLLSOptions, rep *replicates) (NLLSResult, error) {
 	p := c.NumParams()
 	n := len(x)
 	if err := checkNLLSInput(p, x, y, w, &opt); err != nil {
@@ -159,7 +166,16 @@ func solveNLLS(c Curve, x, lx, y, w []float64, opt NLLSOptions) (NLLSResult, err
 	if n <= k {
 		return NLLSResult{}, inputErr("points", "%d readings for %d free parameters", n, k)
 	}
-	res, err := solveFrom(c, x, lx, y, w, opt, k, nllsLambda0)
+	if rep == nil {
+		rep = groupReplicates(x, lx, y, w)
+	}
+	if len(rep.x) <= k {
+		// No replicates, or too few levels to leave the reduced problem
+		// residual degrees of freedom: the readings are fitted as they
+		// are.
+		rep = nil
+	}
+	res, err := solveFrom(c, x, lx, y, w, opt, k, nllsLambda0, rep)
 	if err != nil || (res.Outcome != Singular && res.Outcome != IterationLimit) {
 		return res, err
 	}
@@ -167,7 +183,7 @@ func solveNLLS(c Curve, x, lx, y, w []float64, opt NLLSOptions) (NLLSResult, err
 	// first steps are short, gradient-like ones, which keep a poor start
 	// from running onto a plateau or along a valley. Only a converged
 	// second try replaces the first outcome.
-	again, err := solveFrom(c, x, lx, y, w, opt, k, nllsRetryLambda0)
+	again, err := solveFrom(c, x, lx, y, w, opt, k, nllsRetryLambda0, rep)
 	if err != nil || again.Outcome != Converged {
 		return res, nil
 	}
@@ -184,10 +200,110 @@ const (
 	nllsRetryLambda0 = 1e2
 )
 
+// replicates is the least-squares problem of readings that share their
+// concentrations, reduced to one row per distinct x. Readings i at one x
+// have the same model value f(x; β) and Jacobian row, so
+//
+//	Σᵢ wᵢ(yᵢ − f)² = W·(ȳ − f)² + Σᵢ wᵢ(yᵢ − ȳ)²,  W = Σᵢ wᵢ, ȳ = Σᵢ wᵢyᵢ/W,
+//
+// where the last sum (pure error) does not depend on β, and JᵀWJ and
+// JᵀW·r are the same summed over the readings or over the levels with
+// weight W at ȳ. The solver therefore iterates on the levels (fewer rows
+// to evaluate and factorise; the same steps in exact arithmetic) and
+// adds the pure error back wherever the whole sum of squares counts: the
+// convergence criteria, SSR, s and the residuals per reading.
+type replicates struct {
+	x, lx, y, w []float64 // per level: x, ln x (when given), ȳ, W
+	level       []int     // level of each reading
+	yr          []float64 // the readings' responses
+	pe          float64   // Σᵢ wᵢ(yᵢ − ȳ)² over every level
+	ynorm       float64   // ‖√W·y‖ over the readings
+}
+
+// groupReplicates groups readings with equal x (see replicates). When no
+// two readings share an x it returns a replicates with no levels (x nil):
+// the readings are fitted as they are.
+func groupReplicates(x, lx, y, w []float64) *replicates {
+	n := len(x)
+	level := make([]int, n)
+	buf := make([]float64, 4*n)
+	ux := buf[:0:n]
+	var index map[float64]int // for many readings; a linear search otherwise
+	if n > 64 {
+		index = make(map[float64]int, n)
+	}
+	last := 0
+	for i, v := range x {
+		l := -1
+		switch {
+		case len(ux) > 0 && ux[last] == v:
+			l = last // replicates usually follow each other
+		case index != nil:
+			if j, ok := index[v]; ok {
+				l = j
+			}
+		default:
+			for j, u := range ux {
+				if u == v {
+					l = j
+					break
+				}
+			}
+		}
+		if l < 0 {
+			l = len(ux)
+			ux = append(ux, v)
+			if index != nil {
+				index[v] = l
+			}
+		}
+		level[i], last = l, l
+	}
+	m := len(ux)
+	if m == n {
+		return &replicates{}
+	}
+	r := &replicates{x: ux, y: buf[n : n+m : n+m], w: buf[2*n : 2*n+m : 2*n+m], level: level, yr: y}
+	for i, l := range level {
+		wi := 1.0
+		if w != nil {
+			wi = w[i]
+		}
+		r.w[l] += wi
+		r.y[l] += wi * y[i]
+		r.ynorm += wi * y[i] * y[i]
+	}
+	for l := range r.y {
+		r.y[l] /= r.w[l]
+	}
+	for i, l := range level {
+		wi := 1.0
+		if w != nil {
+			wi = w[i]
+		}
+		d := y[i] - r.y[l]
+		r.pe += wi * d * d
+	}
+	r.ynorm = math.Sqrt(r.ynorm)
+	if lx != nil {
+		r.lx = buf[3*n : 3*n+m : 3*n+m]
+		for i, l := range level {
+			r.lx[l] = lx[i]
+		}
+	}
+	return r
+}
+
 // solveFrom is one Levenberg–Marquardt run from opt.Start with initial
-// damping lambda0.
-func solveFrom(c Curve, x, lx, y, w []float64, opt NLLSOptions, k int, lambda0 float64) (NLLSResult, error) {
-	s := newNLLSState(c, x, lx, y, w, opt, k)
+// damping lambda0, on the readings grouped by rep when it is not nil.
+func solveFrom(c Curve, x, lx, y, w []float64, opt NLLSOptions, k int, lambda0 float64, rep *replicates) (NLLSResult, error) {
+	var s *nllsState
+	if rep != nil {
+		s = newNLLSState(c, rep.x, rep.lx, rep.y, rep.w, opt, k)
+		s.rep, s.ynorm, s.pe = rep, rep.ynorm, rep.pe
+	} else {
+		s = newNLLSState(c, x, lx, y, w, opt, k)
+	}
 	defer s.release()
 	s.ss = s.residuals(s.beta, s.r, s.jfull)
 	if !s.useJacobian() {
@@ -316,18 +432,20 @@ type nllsState struct {
 	jacAt   bool      // jac belongs to beta (else jfull does and jac is to be derived)
 	d       []float64 // Moré's column scales
 	ss      float64
-	ynorm   float64   // ‖√W·y‖
-	big     []float64 // [√W·J·D⁻¹ | √W·r], n×(k+1) column-major, factorised once per iteration
-	rk      []float64 // leading k×k block of R (of √W·J, unscaled), row-major
-	qtr     []float64 // first k entries of Qᵀ·√W·r
-	small   []float64 // R of [R; √λ·I] (k×k row-major), built by step
-	z       []float64 // scratch of the covariance
-	wa      []float64 // Qᵀ·√W·r rotated along with small
-	sdiag   []float64 // the row of √λ·I being rotated in
-	g       []float64 // Jᵀ·W·r over the free parameters
-	cn      []float64 // ‖√W·Jⱼ‖² over the free parameters
-	delta   []float64 // trial step
-	active  []bool    // free parameter held at a bound this iteration
+	ynorm   float64     // ‖√W·y‖
+	rep     *replicates // the readings, when the rows are their levels; else nil
+	pe      float64     // rep's pure-error sum of squares (0 without rep)
+	big     []float64   // [√W·J·D⁻¹ | √W·r], n×(k+1) column-major, factorised once per iteration
+	rk      []float64   // leading k×k block of R (of √W·J, unscaled), row-major
+	qtr     []float64   // first k entries of Qᵀ·√W·r
+	small   []float64   // R of [R; √λ·I] (k×k row-major), built by step
+	z       []float64   // scratch of the covariance
+	wa      []float64   // Qᵀ·√W·r rotated along with small
+	sdiag   []float64   // the row of √λ·I being rotated in
+	g       []float64   // Jᵀ·W·r over the free parameters
+	cn      []float64   // ‖√W·Jⱼ‖² over the free parameters
+	delta   []float64   // trial step
+	active  []bool      // free parameter held at a bound this iteration
 }
 
 func newNLLSState(c Curve, x, lx, y, w []float64, opt NLLSOptions, k int) *nllsState {
@@ -475,7 +593,8 @@ func (s *nllsState) iterate(lambda0 float64) NLLSResult {
 	var res NLLSResult
 	for it := 1; ; it++ {
 		res.Iterations = it
-		if s.ss <= 1e-300 {
+		ssAll := s.ss + s.pe // the sum of squares over every reading
+		if ssAll <= 1e-300 {
 			res.Outcome, res.Criterion = Converged, "zero residual"
 			return res
 		}
@@ -486,7 +605,7 @@ func (s *nllsState) iterate(lambda0 float64) NLLSResult {
 			lo, hi := bounds(opt, j)
 			s.active[l] = (s.beta[j] <= lo && gl < 0) || (s.beta[j] >= hi && gl > 0)
 			if !s.active[l] && cn > 0 {
-				gmax = max(gmax, math.Abs(gl)/math.Sqrt(cn*s.ss))
+				gmax = max(gmax, math.Abs(gl)/math.Sqrt(cn*ssAll))
 			}
 		}
 		if gmax <= opt.GTol {
@@ -513,7 +632,7 @@ func (s *nllsState) iterate(lambda0 float64) NLLSResult {
 				if pred > 0 {
 					ratio = act / pred
 				}
-				if math.Abs(act) <= opt.FTol*s.ss && pred <= opt.FTol*s.ss && ratio <= 2 {
+				if math.Abs(act) <= opt.FTol*ssAll && pred <= opt.FTol*ssAll && ratio <= 2 {
 					if act > 0 {
 						s.accept(ssNew)
 					}
@@ -763,6 +882,9 @@ func (s *nllsState) accept(ss float64) {
 // bounds and (when the Jacobian has full rank) the covariance.
 func (s *nllsState) finish(res NLLSResult) NLLSResult {
 	n, p, k := len(s.x), len(s.beta), len(s.free)
+	if s.rep != nil {
+		n = len(s.rep.level)
+	}
 	// The weighted Jacobian matches beta unless the last accepted step ended
 	// the loop (by the SS criterion); then it is derived from the Jacobian
 	// evaluated with that step's residuals.
@@ -775,12 +897,19 @@ func (s *nllsState) finish(res NLLSResult) NLLSResult {
 	res.Params = out[:p:p]
 	copy(res.Params, s.beta)
 	res.Residuals = out[p : p+n : p+n]
-	for i := range s.x {
-		res.Residuals[i] = s.r[i] / s.sw[i]
+	if s.rep != nil {
+		// yᵢ − f = (yᵢ − ȳ) + (ȳ − f) at the reading's level.
+		for i, l := range s.rep.level {
+			res.Residuals[i] = (s.rep.yr[i] - s.y[l]) + s.r[l]/s.sw[l]
+		}
+	} else {
+		for i := range s.x {
+			res.Residuals[i] = s.r[i] / s.sw[i]
+		}
 	}
-	res.SSR = s.ss
+	res.SSR = s.ss + s.pe
 	res.DF = n - k
-	res.ResidualSD = math.Sqrt(s.ss / float64(res.DF))
+	res.ResidualSD = math.Sqrt(res.SSR / float64(res.DF))
 	res.AtBound = make([]bool, p)
 	for _, j := range s.free {
 		lo, hi := bounds(s.opt, j)

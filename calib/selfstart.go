@@ -16,10 +16,13 @@ import (
 //     x > 0). Should the line fail (b ≤ 0), b = 1 and c the geometric mean
 //     of the positive concentrations.
 //     Given b and c the 4PL is linear in a and d, y = a·h + d·(1 − h) with
-//     h = 1/(1 + (x/c)^b): when both are free, a and d are then replaced by
-//     their weighted least-squares values if those are finite and keep
-//     the curve's direction (a partially linear start; it saves the
-//     solver a few iterations).
+//     h = 1/(1 + (x/c)^b). When all four are free, b and c are then
+//     refined over that linear profile by variable projection, a and d
+//     taking their weighted least-squares values at each step
+//     (refineLogistic; it saves the solver several iterations). When b or
+//     c is fixed and a and d are free, a and d alone are replaced by their
+//     weighted least-squares values if those are finite and keep the
+//     curve's direction (refineAsymptotes).
 //   - 5PL: the fitted 4PL (same data, weights and fixed a, b, c, d), g = 1.
 //   - power: the straight line ln|y| = ln|a| + b·ln x over readings with
 //     x > 0 and y of the majority sign.
@@ -28,7 +31,10 @@ import (
 //     from −ln(1 − u) = b·x through the origin, u = (y − y0)/a.
 //
 // lx[i] = ln x[i] (−Inf at 0).
-func selfStart(m Model, x, lx, y, w []float64, opt CurveOptions, lower, upper []float64) ([]float64, error) {
+//
+// rep groups the readings by concentration (see replicates); the 4PL's
+// refinement works on its levels when it has any.
+func selfStart(m Model, x, lx, y, w []float64, opt CurveOptions, lower, upper []float64, rep *replicates) ([]float64, error) {
 	fixed := func(j int) (float64, bool) {
 		if opt.Fixed != nil && !math.IsNaN(opt.Fixed[j]) {
 			return opt.Fixed[j], true
@@ -40,7 +46,15 @@ func selfStart(m Model, x, lx, y, w []float64, opt CurveOptions, lower, upper []
 	switch m {
 	case FourPL:
 		s = startLogistic(x, lx, y, ends, fixed)
-		refineAsymptotes(x, lx, y, w, s, fixed)
+		if opt.Fixed == nil || !slices.ContainsFunc(opt.Fixed[:4], func(v float64) bool { return !math.IsNaN(v) }) {
+			if rep.x != nil {
+				refineLogistic(rep.x, rep.lx, rep.y, rep.w, s, rep.pe, make([]float64, 2*len(rep.x)))
+			} else {
+				refineLogistic(x, lx, y, w, s, 0, make([]float64, 2*len(x)))
+			}
+		} else {
+			refineAsymptotes(x, lx, y, w, s, fixed)
+		}
 	case FivePL:
 		o := opt
 		o.Model, o.Start, o.MaxIter = FourPL, nil, 0
@@ -259,4 +273,139 @@ func refineAsymptotes(x, lx, y, w, s []float64, fixed func(int) (float64, bool))
 	if Finite(a, d) && (a-d)*(s[0]-s[3]) > 0 {
 		s[0], s[3] = a, d
 	}
+}
+
+// logisticProfile is the 4PL with b and c given and a and d eliminated:
+// at (b, ln c) the responses are linear in the asymptotes,
+// y = a·h + d·(1 − h), h = 1/(1 + (x/c)^b), and a and d are their weighted
+// least-squares values.
+type logisticProfile struct {
+	x, lx, y, w []float64
+	h, u        []float64 // h and ln(x/c) per reading at the last evaluation
+}
+
+// at evaluates the profile at (b, lc = ln c): the asymptotes, the weighted
+// sum of squares and the Gram sums of the basis (h, 1 − h); ok is false
+// when the basis is degenerate or a value is not finite.
+func (p *logisticProfile) at(b, lc float64) (a, d, ss float64, gram [3]float64, ok bool) {
+	var shh, sho, soo, shy, soy float64
+	h, u, px := 1.0, 0.0, math.NaN()
+	for i, xi := range p.x {
+		if xi != px {
+			px, h, u = xi, 1.0, 0.0
+			if xi > 0 {
+				u = p.lx[i] - lc
+				h, _, _ = core4(b * u)
+			}
+		}
+		p.h[i], p.u[i] = h, u
+		wi := p.weight(i)
+		o := 1 - h
+		shh += wi * h * h
+		sho += wi * h * o
+		soo += wi * o * o
+		shy += wi * h * p.y[i]
+		soy += wi * o * p.y[i]
+	}
+	det := shh*soo - sho*sho
+	if !(det > 1e-12*shh*soo) {
+		return 0, 0, 0, gram, false
+	}
+	a = (shy*soo - soy*sho) / det
+	d = (soy*shh - shy*sho) / det
+	for i, yi := range p.y {
+		r := yi - d - (a-d)*p.h[i]
+		ss += p.weight(i) * r * r
+	}
+	return a, d, ss, [3]float64{shh, sho, soo}, Finite(a, d, ss)
+}
+
+func (p *logisticProfile) weight(i int) float64 {
+	if p.w == nil {
+		return 1
+	}
+	return p.w[i]
+}
+
+// refineLogistic improves a 4PL start whose four coefficients are all
+// free by damped Gauss–Newton steps on (b, ln c) over the profile with a
+// and d eliminated (variable projection, Golub and Pereyra 1973, with
+// Kaufman's 1975 approximation of its Jacobian): each step projects the
+// model's derivatives in b and ln c off the span of (h, 1 − h) and solves
+// the 2×2 damped normal equations; a step is taken only when it lowers
+// the weighted sum of squares. At most 8 steps, ending once a step lowers
+// it by less than 1e-6 of the whole sum (pe is the pure-error sum of
+// squares of readings grouped into levels, which the levels' sum leaves
+// out). The solver, not this, decides convergence: this only brings the
+// start near the minimum, where the Levenberg–Marquardt iterations on
+// all four coefficients need few steps. It leaves s as it is when the
+// profile cannot be evaluated at the start.
+func refineLogistic(x, lx, y, w, s []float64, pe float64, scratch []float64) {
+	n := len(x)
+	p := logisticProfile{x: x, lx: lx, y: y, w: w, h: scratch[:n:n], u: scratch[n : 2*n : 2*n]}
+	b, lc := s[1], math.Log(s[2])
+	a, d, ss, gram, ok := p.at(b, lc)
+	if !ok || (a-d)*(s[0]-s[3]) <= 0 {
+		return
+	}
+	mu := 1e-3
+	for it := 0; it < 8 && ss > 0; it++ {
+		// Derivatives of the model in b and ln c: with k = h·(1 − h),
+		// ∂f/∂b = −(a − d)·k·u and ∂f/∂ln c = (a − d)·k·b.
+		var vbb, vbl, vll, hb, hl, ob, ol, gb, gl float64
+		m := a - d
+		for i, h := range p.h {
+			wi := p.weight(i)
+			k := m * h * (1 - h)
+			jb, jl := -k*p.u[i], k*b
+			r := y[i] - d - m*h
+			vbb += wi * jb * jb
+			vbl += wi * jb * jl
+			vll += wi * jl * jl
+			hb += wi * h * jb
+			hl += wi * h * jl
+			ob += wi * (1 - h) * jb
+			ol += wi * (1 - h) * jl
+			gb += wi * jb * r
+			gl += wi * jl * r
+		}
+		// Project off the basis: A = V − Pᵀ·G⁻¹·P.
+		shh, sho, soo := gram[0], gram[1], gram[2]
+		det := shh*soo - sho*sho
+		proj := func(p1, p2, q1, q2 float64) float64 {
+			return (p1*(soo*q1-sho*q2) + p2*(shh*q2-sho*q1)) / det
+		}
+		abb := vbb - proj(hb, ob, hb, ob)
+		abl := vbl - proj(hb, ob, hl, ol)
+		all := vll - proj(hl, ol, hl, ol)
+		improved := false
+		for try := 0; try < 6; try++ {
+			m11, m22 := abb*(1+mu), all*(1+mu)
+			dd := m11*m22 - abl*abl
+			if !(dd > 0) {
+				mu *= 10
+				continue
+			}
+			db := (gb*m22 - gl*abl) / dd
+			dl := (gl*m11 - gb*abl) / dd
+			nb, nlc := b+db, lc+dl
+			if !(nb > 0) || !Finite(nb, nlc) {
+				mu *= 10
+				continue
+			}
+			na, nd, nss, ng, ok := p.at(nb, nlc)
+			if ok && nss < ss && (na-nd)*(s[0]-s[3]) > 0 {
+				rel := (ss - nss) / (ss + pe)
+				b, lc, a, d, ss, gram = nb, nlc, na, nd, nss, ng
+				mu = max(mu/10, 1e-9)
+				improved = rel > 1e-6
+				break
+			}
+			mu *= 10
+		}
+		if !improved {
+			break
+		}
+	}
+	s[0], s[1], s[2], s[3] = a, b, math.Exp(lc), d
 }

@@ -324,7 +324,7 @@ func (r *Report) CalibrationTermOf(name string, pr Prediction) (UncertaintyTerm,
 		x0 := pr.Concentration / pr.Dilution
 		cv := r.newCurveVar(c, pr.Readings)
 		fx := c.Eval(x0, r.Coefficients, nil)
-		v := cv.varAt(x0, fx, make([]float64, len(r.Coefficients))) // s²/(m·w0): the curve's own term left out
+		v := cv.varAt(fx, make([]float64, len(r.Coefficients))) // s²/(m·w0): the curve's own term left out
 		t.Curve = &CurveDraw{DF: float64(r.DF), MeanY: pr.MeanResponse, Dilution: pr.Dilution, Readings: pr.Readings,
 			ResidualSD: r.ResidualSD, SDMeanY: math.Sqrt(v), Model: r.Model, Params: r.Coefficients, ParamCov: r.Covariance}
 	}
