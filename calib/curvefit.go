@@ -91,6 +91,10 @@ func FitCurve(x, y, w []float64, opt CurveOptions) (*CurveFit, error) {
 	// the self-start and the solver.
 	wn, lx := wl[:n:n], wl[n:]
 	for i, v := range x {
+		if i > 0 && v == x[i-1] {
+			lx[i] = lx[i-1] // a replicate of the reading before
+			continue
+		}
 		lx[i] = math.Log(v)
 	}
 	var sw float64

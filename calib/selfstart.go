@@ -45,15 +45,18 @@ func selfStart(m Model, x, lx, y, w []float64, opt CurveOptions, lower, upper []
 	var s []float64
 	switch m {
 	case FourPL:
-		s = startLogistic(x, lx, y, ends, fixed)
+		// Replicates enter the start as their levels: the weighted
+		// least-squares problems below are the same on the levels (see
+		// replicates), and the logit line is fitted to the level means.
+		gx, glx, gy, gw, pe := x, lx, y, w, 0.0
+		if rep.x != nil {
+			gx, glx, gy, gw, pe = rep.x, rep.lx, rep.y, rep.w, rep.pe
+		}
+		s = startLogistic(gx, glx, gy, ends, fixed)
 		if opt.Fixed == nil || !slices.ContainsFunc(opt.Fixed[:4], func(v float64) bool { return !math.IsNaN(v) }) {
-			if rep.x != nil {
-				refineLogistic(rep.x, rep.lx, rep.y, rep.w, s, rep.pe, make([]float64, 2*len(rep.x)))
-			} else {
-				refineLogistic(x, lx, y, w, s, 0, make([]float64, 2*len(x)))
-			}
+			refineLogistic(gx, glx, gy, gw, s, pe, make([]float64, 2*len(gx)))
 		} else {
-			refineAsymptotes(x, lx, y, w, s, fixed)
+			refineAsymptotes(gx, glx, gy, gw, s, fixed)
 		}
 	case FivePL:
 		o := opt
@@ -333,10 +336,10 @@ func (p *logisticProfile) weight(i int) float64 {
 // Kaufman's 1975 approximation of its Jacobian): each step projects the
 // model's derivatives in b and ln c off the span of (h, 1 − h) and solves
 // the 2×2 damped normal equations; a step is taken only when it lowers
-// the weighted sum of squares. At most 8 steps, ending once a step lowers
-// it by less than 1e-6 of the whole sum (pe is the pure-error sum of
-// squares of readings grouped into levels, which the levels' sum leaves
-// out). The solver, not this, decides convergence: this only brings the
+// the weighted sum of squares. At most 8 steps, ending after a step that
+// lowers it by less than 1e-6 of the whole sum (pe is the pure-error sum
+// of squares of readings grouped into levels, which the levels' sum
+// leaves out). The solver, not this, decides convergence: this only brings the
 // start near the minimum, where the Levenberg–Marquardt iterations on
 // all four coefficients need few steps. It leaves s as it is when the
 // profile cannot be evaluated at the start.
@@ -395,10 +398,9 @@ func refineLogistic(x, lx, y, w, s []float64, pe float64, scratch []float64) {
 			}
 			na, nd, nss, ng, ok := p.at(nb, nlc)
 			if ok && nss < ss && (na-nd)*(s[0]-s[3]) > 0 {
-				rel := (ss - nss) / (ss + pe)
+				improved = ss-nss > 1e-6*(ss+pe)
 				b, lc, a, d, ss, gram = nb, nlc, na, nd, nss, ng
 				mu = max(mu/10, 1e-9)
-				improved = rel > 1e-6
 				break
 			}
 			mu *= 10
