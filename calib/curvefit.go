@@ -86,7 +86,9 @@ func FitCurve(x, y, w []float64, opt CurveOptions) (*CurveFit, error) {
 		}
 	}
 	n := len(x)
-	wl := make([]float64, 2*n)
+	sc := getScratch()
+	defer sc.release()
+	wl := sc.f.take(2 * n)
 	// wn: the weights on the Σw = n scale; lx: ln x (−Inf at 0), shared by
 	// the self-start and the solver.
 	wn, lx := wl[:n:n], wl[n:]
@@ -112,13 +114,13 @@ func FitCurve(x, y, w []float64, opt CurveOptions) (*CurveFit, error) {
 	if math.IsInf(scale, 0) || !(scale > 0) {
 		return nil, inputErr("weights", "the weights cannot be normalised (their sum is not finite)")
 	}
-	lower, upper := curveBounds(opt.Model, x)
+	lower, upper := curveBounds(opt.Model, x, sc.f.take(2*p))
 	fixed := make([]bool, p)
 	for j := range opt.Fixed {
 		fixed[j] = !math.IsNaN(opt.Fixed[j])
 	}
-	rep := groupReplicates(x, lx, y, wn)
-	start, err := selfStart(opt.Model, x, lx, y, wn, opt, lower, upper, rep)
+	rep := groupReplicates(x, lx, y, wn, sc)
+	start, err := selfStart(opt.Model, x, lx, y, wn, opt, lower, upper, rep, sc)
 	if err != nil {
 		return nil, err
 	}
@@ -195,7 +197,8 @@ func checkCurveData(x, y, w []float64) error {
 //	exponential: b in [1e-9/xₘₐₓ, 1e9/x⁺ₘᵢₙ]
 //
 // Responses (a, d, y0) are unbounded.
-func curveBounds(m Model, x []float64) (lower, upper []float64) {
+// lu is 2·NumParams of memory for the two.
+func curveBounds(m Model, x []float64, lu []float64) (lower, upper []float64) {
 	xmin, xmax := math.Inf(1), 0.0
 	for _, v := range x {
 		if v > 0 {
@@ -204,8 +207,7 @@ func curveBounds(m Model, x []float64) (lower, upper []float64) {
 		xmax = max(xmax, v)
 	}
 	p := curveOf(m).NumParams()
-	lu := make([]float64, 2*p)
-	lower, upper = lu[:p:p], lu[p:]
+	lower, upper = lu[:p:p], lu[p:2*p]
 	for j := range lower {
 		lower[j], upper[j] = math.Inf(-1), math.Inf(1)
 	}

@@ -217,9 +217,11 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 	if err != nil {
 		return nil, err
 	}
-	xyw := make([]float64, 3*len(points)) // x, y and the weights of the fitted readings
+	sc := getScratch()
+	defer sc.release()
+	xyw := sc.f.take(3 * len(points)) // x, y and the weights of the fitted readings
 	x, y := xyw[0:0:len(points)], xyw[len(points):len(points):2*len(points)]
-	pidx := make([]int, 0, len(points))
+	pidx := sc.i.take(len(points))[:0]
 	for i, p := range points {
 		if !Finite(p.X, p.Y) {
 			return nil, inputErr("points["+itoa(i)+"]", "reading is not a finite number")
@@ -229,7 +231,7 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 		}
 		x, y, pidx = append(x, p.X), append(y, p.Y), append(pidx, i)
 	}
-	levels := groupCurveLevels(points, pidx)
+	levels := groupCurveLevels(points, pidx, sc)
 	c := curveOf(opt.Model)
 	np := c.NumParams()
 	if len(x) <= np {
@@ -299,7 +301,7 @@ func fitCurveReport(points []Point, opt Options) (*Report, error) {
 	}
 	cd.Fixed, cd.Start = fit.Fixed, fit.Start
 	cd.Outcome, cd.Criterion, cd.Iterations = fit.Outcome.String(), fit.Criterion, fit.Iterations
-	return buildCurveReport(points, pidx, x, y, levels, fit, cd, opt), nil
+	return buildCurveReport(points, pidx, x, y, levels, fit, cd, opt, sc), nil
 }
 
 // resolveCurveOptions validates opt for a non-linear model.
@@ -318,11 +320,12 @@ func resolveCurveOptions(opt Options) (Options, error) {
 
 // groupCurveLevels groups the fitted readings (pidx into points) by
 // concentration, in increasing concentration.
-func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
+// Their memory comes from sc.
+func groupCurveLevels(points []Point, pidx []int, sc *scratch) []*curveLevel {
 	// A calibration has few levels: a linear search finds each reading's,
 	// from the last level found (replicates usually follow each other).
 	// One backing array holds the levels and one their reading indices.
-	ints := make([]int, 3*len(pidx))
+	ints := sc.i.take(3 * len(pidx))
 	of, first := ints[:len(pidx)], ints[len(pidx):2*len(pidx)] // level of each reading; first reading of each level
 	nl := 0
 	for k, i := range pidx {
@@ -340,7 +343,7 @@ func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
 		}
 		of[k] = li
 	}
-	store := make([]curveLevel, nl)
+	store := sc.levels.take(nl)
 	for j := range store {
 		p := points[pidx[first[j]]]
 		store[j] = curveLevel{label: p.Level, x: p.X, anchor: isAnchor(p.Level)}
@@ -351,7 +354,7 @@ func groupCurveLevels(points []Point, pidx []int) []*curveLevel {
 		count[li]++
 	}
 	idx := ints[2*len(pidx):]
-	out := make([]*curveLevel, len(store))
+	out := sc.ptrs.take(len(store))
 	at := 0
 	for j := range store {
 		n := count[j]
@@ -474,7 +477,8 @@ func floorOf(n int, f func(int) float64) float64 {
 }
 
 // buildCurveReport assembles the Report of a non-linear fit.
-func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curveLevel, fit *CurveFit, cd *CurveDetails, opt Options) *Report {
+// Its temporaries come from sc; the Report refers to none of them.
+func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curveLevel, fit *CurveFit, cd *CurveDetails, opt Options, sc *scratch) *Report {
 	c := curveOf(fit.Model)
 	r := &Report{Model: fit.Model, Weighting: opt.Weighting, WeightingRequested: opt.Weighting,
 		WeightConvention: weightConvention(len(x)), WeightScale: fit.WeightScale,
@@ -484,7 +488,7 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 		ZeroHandling: "responses near zero are weighted as the smallest non-zero |fitted response| (response_floor)",
 		Limits:       Limits{Detail: "not computed: the ICH Q2 slope formulas assume a straight line; the precision profile's working range takes their place for non-linear curves"},
 	}
-	var judged []*curveLevel
+	judged := sc.ptrs.take(len(levels))[:0]
 	for _, l := range levels {
 		if !l.anchor && l.x > 0 {
 			judged = append(judged, l)
@@ -493,7 +497,7 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 	if len(judged) > 0 {
 		r.Range = Range{Low: judged[0].x, High: judged[len(judged)-1].x}
 	}
-	xs := make([]float64, 0, len(levels))
+	xs := sc.f.take(len(levels))[:0]
 	for _, l := range levels {
 		xs = append(xs, l.x)
 	}
@@ -506,7 +510,7 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 	withLev := ok && fit.Covariance != nil && fit.ResidualSD > 0
 	var grads []float64
 	if withLev {
-		grads = make([]float64, len(points)*np)
+		grads = sc.f.take(len(points) * np)
 	}
 	for i, p := range points {
 		pr := &r.Points[i]

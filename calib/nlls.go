@@ -167,7 +167,7 @@ func solveNLLS(c Curve, x, lx, y, w []float64, opt NLLSOptions, rep *replicates)
 		return NLLSResult{}, inputErr("points", "%d readings for %d free parameters", n, k)
 	}
 	if rep == nil {
-		rep = groupReplicates(x, lx, y, w)
+		rep = groupReplicates(x, lx, y, w, nil)
 	}
 	if len(rep.x) <= k {
 		// No replicates, or too few levels to leave the reduced problem
@@ -222,11 +222,18 @@ type replicates struct {
 
 // groupReplicates groups readings with equal x (see replicates). When no
 // two readings share an x it returns a replicates with no levels (x nil):
-// the readings are fitted as they are.
-func groupReplicates(x, lx, y, w []float64) *replicates {
+// the readings are fitted as they are. Its memory comes from sc when sc
+// is not nil.
+func groupReplicates(x, lx, y, w []float64, sc *scratch) *replicates {
 	n := len(x)
-	level := make([]int, n)
-	buf := make([]float64, 4*n)
+	var level []int
+	var buf []float64
+	r := new(replicates)
+	if sc != nil {
+		level, buf, r = sc.i.take(n), sc.f.take(4*n), &sc.rep
+	} else {
+		level, buf = make([]int, n), make([]float64, 4*n)
+	}
 	ux := buf[:0:n]
 	var index map[float64]int // for many readings; a linear search otherwise
 	if n > 64 {
@@ -260,10 +267,11 @@ func groupReplicates(x, lx, y, w []float64) *replicates {
 		level[i], last = l, l
 	}
 	m := len(ux)
+	*r = replicates{}
 	if m == n {
-		return &replicates{}
+		return r
 	}
-	r := &replicates{x: ux, y: buf[n : n+m : n+m], w: buf[2*n : 2*n+m : 2*n+m], level: level, yr: y}
+	*r = replicates{x: ux, y: buf[n : n+m : n+m], w: buf[2*n : 2*n+m : 2*n+m], level: level, yr: y}
 	for i, l := range level {
 		wi := 1.0
 		if w != nil {

@@ -38,7 +38,7 @@ func TestSolveNLLSReplicatesReduced(t *testing.T) {
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
-			rep := groupReplicates(tc.x, nil, tc.y, tc.w)
+			rep := groupReplicates(tc.x, nil, tc.y, tc.w, nil)
 			if len(rep.x) != tc.levels {
 				t.Fatalf("%d levels, want %d", len(rep.x), tc.levels)
 			}
@@ -89,7 +89,7 @@ func TestLogisticStartRefined(t *testing.T) {
 	for i, v := range x {
 		lx[i] = math.Log(v)
 	}
-	rough := startLogistic(x, lx, y, levelEnds(x, y), func(int) (float64, bool) { return 0, false })
+	rough := startLogistic(x, lx, y, levelEnds(x, y), func(int) (float64, bool) { return 0, false }, make([]float64, 3*len(x)))
 	refineAsymptotes(x, lx, y, w, rough, func(int) (float64, bool) { return 0, false })
 	ss := func(beta []float64) float64 {
 		var s float64

@@ -34,7 +34,9 @@ import (
 //
 // rep groups the readings by concentration (see replicates); the 4PL's
 // refinement works on its levels when it has any.
-func selfStart(m Model, x, lx, y, w []float64, opt CurveOptions, lower, upper []float64, rep *replicates) ([]float64, error) {
+//
+// Its working memory comes from sc; the start it returns does not.
+func selfStart(m Model, x, lx, y, w []float64, opt CurveOptions, lower, upper []float64, rep *replicates, sc *scratch) ([]float64, error) {
 	fixed := func(j int) (float64, bool) {
 		if opt.Fixed != nil && !math.IsNaN(opt.Fixed[j]) {
 			return opt.Fixed[j], true
@@ -52,9 +54,9 @@ func selfStart(m Model, x, lx, y, w []float64, opt CurveOptions, lower, upper []
 		if rep.x != nil {
 			gx, glx, gy, gw, pe = rep.x, rep.lx, rep.y, rep.w, rep.pe
 		}
-		s = startLogistic(gx, glx, gy, ends, fixed)
+		s = startLogistic(gx, glx, gy, ends, fixed, sc.f.take(3*len(gx)))
 		if opt.Fixed == nil || !slices.ContainsFunc(opt.Fixed[:4], func(v float64) bool { return !math.IsNaN(v) }) {
-			refineLogistic(gx, glx, gy, gw, s, pe, make([]float64, 2*len(gx)))
+			refineLogistic(gx, glx, gy, gw, s, pe, sc.f.take(2*len(gx)))
 		} else {
 			refineAsymptotes(gx, glx, gy, gw, s, fixed)
 		}
@@ -136,7 +138,8 @@ func lineFit(u, v []float64) (b0, b1 float64, ok bool) {
 	return mv - b1*mu, b1, Finite(b1, mv-b1*mu)
 }
 
-func startLogistic(x, lnx, y []float64, e [4]float64, fixed func(int) (float64, bool)) []float64 {
+// buf is 3·len(x) of scratch memory.
+func startLogistic(x, lnx, y []float64, e [4]float64, fixed func(int) (float64, bool), buf []float64) []float64 {
 	spread := e[3] - e[2]
 	a, d := e[3]+0.05*spread, e[2]-0.05*spread // falling curve
 	if e[1] > e[0] {
@@ -148,7 +151,6 @@ func startLogistic(x, lnx, y []float64, e [4]float64, fixed func(int) (float64, 
 	if v, ok := fixed(3); ok {
 		d = v
 	}
-	buf := make([]float64, 3*len(x)+4) // scratch, and the start at its end
 	all, lx, z := buf[0:0:len(x)], buf[len(x):len(x):2*len(x)], buf[2*len(x):2*len(x):3*len(x)]
 	for i := range x {
 		if x[i] > 0 {
@@ -171,9 +173,7 @@ func startLogistic(x, lnx, y []float64, e [4]float64, fixed func(int) (float64, 
 		}
 		b, c = 1, math.Exp(m/float64(len(all)))
 	}
-	s := buf[3*len(x):]
-	s[0], s[1], s[2], s[3] = a, b, c, d
-	return s
+	return []float64{a, b, c, d}
 }
 
 func startPower(x, y []float64) []float64 {
