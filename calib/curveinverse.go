@@ -71,8 +71,7 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 	if rel := t * se / x0; Finite(rel) {
 		step = 1 + min(max(0.5*rel, 0.02), 1)
 	}
-	lo := r.bandEdge(gap, x0, g0, -1, step)
-	hi := r.bandEdge(gap, x0, g0, +1, step)
+	lo, hi := r.bandEdges(gap, x0, g0, step, t*se/x0)
 	pr.Interval.Low = lo * pr.Dilution
 	if math.IsInf(hi, 1) {
 		pr.Interval.HighOpen = true
@@ -84,81 +83,147 @@ func (r *Report) predictCurve(y0 float64, m int, confidence float64, pr *Predict
 	return nil
 }
 
-// bandEdge walks from x0 (inside the band, gap g0 ≥ 0) in direction dir (−1
-// down, +1 up) by factors of step and returns the last x inside, refined
-// in log x to 1e-13 relative by regula falsi with the Illinois
-// modification (which converges superlinearly on the smooth gap and moves
-// both ends), bisecting when an interpolated point is not finite or not
-// inside the bracket and stepping inside by edgeStep from an end it
-// would land next to; +Inf going up and 0 going down when the band never
-// closes. gap takes u = ln x (−Inf for x = 0): the walk and the
-// refinement both work in u, and x is computed once, at the end.
-func (r *Report) bandEdge(gap func(float64) float64, x0, g0 float64, dir int, step float64) float64 {
-	lim := math.Log(r.Range.High * 1e6)
-	if dir < 0 {
-		lim = math.Log(r.Range.Low * 1e-6)
-		if x0 <= 0 {
-			return 0
+// bandEdges returns the lower and upper edges of the band around x0
+// (inside, gap g0 ≥ 0), each found by an edgeSearch. The two searches
+// advance in lockstep: their evaluations of gap do not depend on each
+// other, so the processor overlaps them (each evaluation is a chain of
+// an exponential, divisions and a square root whose latency, not its
+// instruction count, sets its time).
+func (r *Report) bandEdges(gap func(float64) float64, x0, g0, step, rel float64) (lo, hi float64) {
+	down := newEdgeSearch(-1, x0, g0, step, rel, math.Log(r.Range.Low*1e-6))
+	up := newEdgeSearch(+1, x0, g0, step, rel, math.Log(r.Range.High*1e6))
+	for {
+		ul, okl := down.next()
+		uh, okh := up.next()
+		if !okl && !okh {
+			return down.result, up.result
+		}
+		var gl, gh float64
+		if okl {
+			gl = gap(ul)
+		}
+		if okh {
+			gh = gap(uh)
+		}
+		if okl {
+			down.feed(gl)
+		}
+		if okh {
+			up.feed(gh)
 		}
 	}
-	ui := math.Log(x0)
-	u := ui
-	gin := g0
-	var gout float64
-	du := float64(dir) * math.Log(step)
-	zero := false // the walk went below lim: the outer end is x = 0
-	for range 4000 {
-		u += du
-		if (dir > 0 && u > lim) || (dir < 0 && u < lim) {
-			if dir > 0 {
-				return math.Inf(1)
-			}
-			if gap(math.Inf(-1)) >= 0 {
-				return 0
-			}
-			zero = true
-			break
-		}
-		gout = gap(u)
-		if !(gout >= 0) {
-			break
-		}
-		ui, gin = u, gout
+}
+
+// edgeSearch walks from x0 (inside the band) in direction dir (−1 down,
+// +1 up) by factors of step and finds the last x inside, refined in
+// u = ln x to 1e-13 by regula falsi with the Illinois modification (which
+// converges superlinearly on the smooth gap and moves both ends),
+// bisecting when an interpolated point is not inside the bracket and
+// stepping inside by edgeStep from an end it would land next to. Its
+// result is +Inf going up and 0 going down when the band never closes
+// before the walk's limit (ln x = lim). It is a state machine: next gives
+// the u at which to evaluate the gap (u = −Inf for x = 0) or reports that
+// the search is done (result set), and feed takes that gap.
+type edgeSearch struct {
+	dir      int
+	phase    edgePhase
+	lim, du  float64
+	ui, uo   float64 // inside (gap ≥ 0) and outside ends
+	gin      float64
+	gout     float64
+	side     int     // the end the last refinement moved (Illinois)
+	pending  float64 // the u handed out by next
+	u0, g0   float64 // ln x0 and its gap
+	du1      float64 // the first probe's step
+	count    int     // evaluations in the current phase
+	result   float64
+	finished bool
+}
+
+type edgePhase int
+
+const (
+	edgeWalk   edgePhase = iota // stepping out from x0
+	edgeAtZero                  // the walk passed its lower limit: is x = 0 inside?
+	edgeHalve                   // the band closes between 0 and e^ui: halving x
+	edgeRefine                  // regula falsi on [ui, uo]
+)
+
+func newEdgeSearch(dir int, x0, g0, step, rel, lim float64) edgeSearch {
+	e := edgeSearch{dir: dir, lim: lim, du: float64(dir) * math.Log(step), gin: g0, g0: g0}
+	if dir < 0 && x0 <= 0 {
+		e.finished, e.result = true, 0
+		return e
 	}
-	uo := u
-	if zero {
-		// The band closes between 0 and e^ui: halve x towards 0 until a
-		// point outside has x > 0, then refine in log x.
-		found := false
-		for range 200 {
-			mid := ui - math.Ln2
-			if math.Exp(mid) == 0 {
-				return math.Exp(ui)
-			}
-			g := gap(mid)
-			if g >= 0 {
-				ui, gin = mid, g
-				continue
-			}
-			uo, gout, found = mid, g, true
-			break
-		}
-		if !found {
-			return math.Exp(ui)
-		}
+	e.ui = math.Log(x0)
+	e.u0 = e.ui
+	// The first probe: the delta-method end x0·(1 ± rel), in ln x.
+	switch {
+	case !(rel > 0) || !Finite(rel):
+		e.du1 = e.du
+	case dir > 0:
+		e.du1 = math.Log1p(rel)
+	case rel < 0.9:
+		e.du1 = math.Log1p(-rel)
+	default:
+		e.du1 = -math.Log1p(rel)
 	}
-	// Regula falsi in u on [ui, uo], gap(ui) ≥ 0 > gap(uo). An infinite
-	// gap outside is replaced by bisection.
-	side := 0
-	for range 200 {
-		if math.Abs(uo-ui) <= 1e-13 {
-			break
+	return e
+}
+
+func (e *edgeSearch) done(x float64) (float64, bool) {
+	e.finished, e.result = true, x
+	return 0, false
+}
+
+// next returns the next u to evaluate, or false when the search is done.
+func (e *edgeSearch) next() (float64, bool) {
+	if e.finished {
+		return 0, false
+	}
+	switch e.phase {
+	case edgeWalk:
+		u := e.ui + e.du
+		switch {
+		case e.count == 0:
+			u = e.ui + e.du1
+		case e.count == 1 && e.g0 > e.gin:
+			// Still inside after the first probe: the secant through x0
+			// and the probe, extended by 5 %, to step just past the edge
+			// (at least a tenth of the first probe, at most four probes).
+			d := 1.05 * (e.ui - e.u0) * e.gin / (e.g0 - e.gin)
+			a := math.Abs(e.du1)
+			u = e.ui + math.Copysign(min(max(math.Abs(d), 0.1*a), 4*a), float64(e.dir))
+		}
+		if e.count >= 4000 {
+			return e.done(math.Exp(e.ui))
+		}
+		if (e.dir > 0 && u > e.lim) || (e.dir < 0 && u < e.lim) {
+			if e.dir > 0 {
+				return e.done(math.Inf(1))
+			}
+			e.phase = edgeAtZero
+			e.pending = math.Inf(-1)
+			return e.pending, true
+		}
+		e.pending = u
+	case edgeHalve:
+		u := e.ui - math.Ln2
+		if e.count >= 200 || math.Exp(u) == 0 {
+			return e.done(math.Exp(e.ui))
+		}
+		e.pending = u
+	case edgeRefine:
+		ui, uo := e.ui, e.uo
+		if e.count >= 200 || math.Abs(uo-ui) <= 1e-13 {
+			return e.done(math.Exp(ui))
 		}
 		um := 0.5 * (ui + uo)
-		if Finite(gin, gout) && gin != gout {
-			if v := ui + (uo-ui)*gin/(gin-gout); v > min(ui, uo) && v < max(ui, uo) {
-				um = v
-			}
+		if v := ui + (uo-ui)*e.gin/(e.gin-e.gout); Finite(e.gin, e.gout, v) && e.gin != e.gout {
+			// Rounding can put the interpolated point on an end (when
+			// that end's gap is at rounding level): it is then next to
+			// that end, which the safeguard below handles.
+			um = min(max(v, min(ui, uo)), max(ui, uo))
 			// A point within edgeStep of an end moves inside by edgeStep
 			// (Brent's safeguard): once an end lies next to the crossing,
 			// whose gap is then at rounding level, the next evaluation
@@ -174,24 +239,51 @@ func (r *Report) bandEdge(gap func(float64) float64, x0, g0 float64, dir int, st
 			}
 		}
 		if !(um > min(ui, uo) && um < max(ui, uo)) {
-			break
+			um = 0.5 * (ui + uo)
+			if !(um > min(ui, uo) && um < max(ui, uo)) {
+				return e.done(math.Exp(ui))
+			}
 		}
-		g := gap(um)
+		e.pending = um
+	}
+	return e.pending, true
+}
+
+// feed takes the gap at the u that next returned.
+func (e *edgeSearch) feed(g float64) {
+	u := e.pending
+	e.count++
+	switch e.phase {
+	case edgeWalk, edgeHalve:
+		// Inside: the walk (or the halving) goes on from here; outside:
+		// the bracket is found.
 		if g >= 0 {
-			ui, gin = um, g
-			if side == -1 {
-				gout /= 2 // Illinois: the end that stays loses half its weight
+			e.ui, e.gin = u, g
+			return
+		}
+		e.uo, e.gout = u, g
+		e.phase, e.count = edgeRefine, 0
+	case edgeAtZero:
+		if g >= 0 {
+			e.done(0)
+			return
+		}
+		e.phase, e.count = edgeHalve, 0
+	case edgeRefine:
+		if g >= 0 {
+			e.ui, e.gin = u, g
+			if e.side == -1 {
+				e.gout /= 2 // Illinois: the end that stays loses half its weight
 			}
-			side = -1
+			e.side = -1
 		} else {
-			uo, gout = um, g
-			if side == 1 {
-				gin /= 2
+			e.uo, e.gout = u, g
+			if e.side == 1 {
+				e.gin /= 2
 			}
-			side = 1
+			e.side = 1
 		}
 	}
-	return math.Exp(ui)
 }
 
 // edgeStep is the safeguard step of bandEdge in ln x: 0.4 of its

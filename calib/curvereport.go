@@ -810,9 +810,11 @@ type curveVar struct {
 	beta     []float64
 	logistic bool // c is a logistic, evaluated from ln(x/c)
 	five     bool
-	m, s2    float64 // readings per unknown, s²
-	s2n      float64 // 1/s²: the θ model's weights on the calibrators' scale (s2Norm); else 0
+	s2m      float64 // s²/m: s² over the readings per unknown
+	invWS    float64 // 1/(WeightScale·s2Norm) (s2Norm with 1/s² weights, else 1): turns 1/raw weight into 1/w0
+	floor2   float64 // the response floor squared (1/y² weights at a zero response)
 	lnc      float64 // ln c of a logistic
+	bc       float64 // b/c of a logistic
 	cov      [25]float64
 	grad     []float64 // ∇βf of a curve that is not a logistic
 }
@@ -820,16 +822,20 @@ type curveVar struct {
 // newCurveVar prepares curveVar for m readings of an unknown.
 func (r *Report) newCurveVar(c calibCurve, m int) curveVar {
 	p := len(r.Coefficients)
-	cv := curveVar{r: r, c: c, beta: r.Coefficients, m: float64(m), s2: r.ResidualSD * r.ResidualSD}
+	cv := curveVar{r: r, c: c, beta: r.Coefficients, s2m: r.ResidualSD * r.ResidualSD / float64(m), invWS: 1 / r.WeightScale}
 	if l, ok := c.(logistic); ok && r.Coefficients[2] > 0 {
 		cv.logistic, cv.five, cv.lnc = true, l.five, math.Log(r.Coefficients[2])
+		cv.bc = r.Coefficients[1] / r.Coefficients[2]
 	} else {
 		cv.grad = make([]float64, p)
 	}
 	if r.Weighting == WeightInvS2 {
 		// Level SDs set the calibrators' scale; the unknown's weight
 		// follows the θ model normalised like them.
-		cv.s2n = r.s2Norm()
+		cv.invWS = 1 / (r.WeightScale * r.s2Norm())
+	}
+	if r.Curve != nil {
+		cv.floor2 = r.Curve.ResponseFloor * r.Curve.ResponseFloor
 	}
 	for j := range p {
 		copy(cv.cov[j*p:j*p+p], r.Covariance[j][:p])
@@ -871,19 +877,25 @@ func (cv *curveVar) atLogU(u float64) (fx, v, hl float64) {
 
 // slopeOf is a logistic's slope f′(x) = −(a − d)·g·h·L·b/x given hl = h·L.
 func (cv *curveVar) slopeOf(hl, x float64) float64 {
+	return cv.slopeLn(hl) / x
+}
+
+// slopeLn is a logistic's slope in ln x, x·f′(x) = −(a − d)·g·h·L·b, given
+// hl = h·L.
+func (cv *curveVar) slopeLn(hl float64) float64 {
 	g := 1.0
 	if cv.five {
 		g = cv.beta[4]
 	}
-	return -(cv.beta[0] - cv.beta[3]) * g * hl * cv.beta[1] / x
+	return -(cv.beta[0] - cv.beta[3]) * g * hl * cv.beta[1]
 }
 
 // fv4 is f and the variance of the 4PL given h = 1/(1 + eᵗ) and L = 1 − h
 // at t = b·u (evalU with g = 1 written out).
 func (cv *curveVar) fv4(h, lg, u float64) (fx, v float64) {
-	a, b, c, d := cv.beta[0], cv.beta[1], cv.beta[2], cv.beta[3]
+	a, d := cv.beta[0], cv.beta[3]
 	k := (a - d) * h * lg
-	g := [4]float64{h, -k * u, k * b / c, lg}
+	g := [4]float64{h, -k * u, k * cv.bc, lg}
 	fx = d + (a-d)*h
 	return fx, cv.varAt(fx, g[:])
 }
@@ -891,11 +903,7 @@ func (cv *curveVar) fv4(h, lg, u float64) (fx, v float64) {
 // varAt is the variance given fx = f(x) and g = ∇βf(x) (the weight of an
 // unknown depends on x only through f(x); a NaN fx gives a NaN variance).
 func (cv *curveVar) varAt(fx float64, g []float64) float64 {
-	w0 := cv.r.WeightScale * cv.r.rawWeightAt(math.NaN(), fx, fx)
-	if cv.s2n != 0 {
-		w0 *= cv.s2n
-	}
-	v := cv.s2 / (cv.m * w0)
+	v := cv.s2m * cv.invWeight(fx)
 	p := len(g)
 	if p == 4 {
 		// The 4PL written out (the same sums in the same order).
@@ -916,6 +924,25 @@ func (cv *curveVar) varAt(fx float64, g []float64) float64 {
 		v += gj * s
 	}
 	return v
+}
+
+// invWeight is 1/w0, the inverse of the weight (on the calibrators'
+// scale) of an unknown whose fitted response is fx: rawWeightAt inverted
+// (the same rules, with no division).
+func (cv *curveVar) invWeight(fx float64) float64 {
+	switch cv.r.Weighting {
+	case WeightInvY2:
+		if fx != 0 {
+			return fx * fx * cv.invWS
+		}
+		return cv.floor2 * cv.invWS
+	case WeightVarPower, WeightInvS2:
+		if math.IsNaN(fx) {
+			return fx
+		}
+		return math.Pow(max(math.Abs(fx), cv.r.Curve.ResponseFloor), 2*cv.r.Curve.Theta) * cv.invWS
+	}
+	return cv.invWS
 }
 
 // quadForm is gᵀ·C·g.
@@ -981,9 +1008,11 @@ func (r *Report) profile(levels []*curveLevel, cd *CurveDetails) {
 		xq, eq = math.Exp(dt), math.Exp(b*dt)
 		geo = min(ei, eEnd) > 1e-280 && max(ei, eEnd) < 1e280
 	}
+	// The CV is s(x̂0)/x = √v/|x·f′(x)|, and x·f′(x) = df/d ln x, which
+	// for a logistic needs no x (slopeLn).
 	for i := range n {
 		t := lo + (hi-lo)*float64(i)/float64(n-1)
-		var x, v, sl float64
+		var x, v, dl float64
 		switch {
 		case geo:
 			x = xi
@@ -992,7 +1021,7 @@ func (r *Report) profile(levels []*curveLevel, cd *CurveDetails) {
 			}
 			h := 1 / (1 + ei)
 			_, v = cv.fv4(h, ei*h, t-cv.lnc)
-			sl = cv.slopeOf(ei*h*h, x)
+			dl = cv.slopeLn(ei * h * h)
 			xi, ei = xi*xq, ei*eq
 		case cv.logistic:
 			x = math.Exp(t)
@@ -1000,18 +1029,22 @@ func (r *Report) profile(levels []*curveLevel, cd *CurveDetails) {
 				x, t = r.Range.High, hi
 			}
 			// ln(x/c) = t − ln c: the grid is even in ln x.
-			_, v, sl = cv.atU(t-cv.lnc, x)
+			var hl float64
+			_, v, hl = cv.atLogU(t - cv.lnc)
+			dl = cv.slopeLn(hl)
 		default:
 			x = math.Exp(t)
 			if i == n-1 {
 				x = r.Range.High
 			}
+			var sl float64
 			_, v, sl = cv.at(x)
+			dl = x * sl
 		}
-		se := math.Sqrt(v) / math.Abs(sl)
+		cvPct := 100 * math.Sqrt(v) / math.Abs(dl)
 		pp := ProfilePoint{X: x}
-		if Finite(se) {
-			pp.CVPct, pp.OK = 100*se/x, true
+		if Finite(cvPct) {
+			pp.CVPct, pp.OK = cvPct, true
 		}
 		cd.Profile[i] = pp
 		if pp.OK && pp.CVPct <= cd.ProfileLimitPct {
