@@ -67,3 +67,44 @@ func relDiff(got, want float64) float64 {
 	}
 	return math.Abs(got-want) / math.Abs(want)
 }
+
+// TestBandEdgesPaths drives the band-edge search (bandEdges) with gaps
+// whose crossings are known, through each of its paths: a crossing found
+// by the walk and refined; a band still open at the walk's lower limit
+// that closes between 0 and that limit (the check at x = 0, halving, then
+// refinement); a band open to 0 below and to +Inf above; and a first probe
+// (the delta-method end, rel) far inside or far outside the edge. Each
+// edge must be found to the search's 1e-13 in ln x.
+func TestBandEdgesPaths(t *testing.T) {
+	r := &Report{Range: Range{Low: 1, High: 10}}
+	gapX := func(f func(x float64) float64) func(float64) float64 {
+		return func(u float64) float64 { return f(math.Exp(u)) }
+	}
+	cases := []struct {
+		name         string
+		f            func(x float64) float64
+		x0, rel      float64
+		wantLo, want float64
+	}{
+		{"both edges by the walk", func(x float64) float64 { return 1 - math.Abs(math.Log(x/3)) }, 3, 0.5, 3 / math.E, 3 * math.E},
+		{"delta-method probe far inside", func(x float64) float64 { return 1 - math.Abs(math.Log(x/3)) }, 3, 0.01, 3 / math.E, 3 * math.E},
+		{"delta-method probe far outside", func(x float64) float64 { return 1 - math.Abs(math.Log(x/3)) }, 3, 50, 3 / math.E, 3 * math.E},
+		{"closes between 0 and the walk's limit", func(x float64) float64 { return math.Min(x-2e-8, 7-x) }, 2, 0.3, 2e-8, 7},
+		{"open below and above", func(float64) float64 { return 1 }, 2, 0.3, 0, math.Inf(1)},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			step := 1 + min(max(0.5*c.rel, 0.02), 1)
+			lo, hi := r.bandEdges(gapX(c.f), c.x0, c.f(c.x0), step, c.rel)
+			near := func(got, want float64) bool {
+				if want == 0 || math.IsInf(want, 0) {
+					return got == want
+				}
+				return math.Abs(math.Log(got/want)) <= 2e-13
+			}
+			if !near(lo, c.wantLo) || !near(hi, c.want) {
+				t.Errorf("edges [%v, %v], want [%v, %v]", lo, hi, c.wantLo, c.want)
+			}
+		})
+	}
+}
