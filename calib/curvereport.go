@@ -484,7 +484,7 @@ func buildCurveReport(points []Point, pidx []int, x, y []float64, levels []*curv
 		WeightConvention: weightConvention(len(x)), WeightScale: fit.WeightScale,
 		Coefficients: fit.Coefficients, StandardErrors: fit.StandardErrors, Covariance: fit.Covariance,
 		ResidualSD: fit.ResidualSD, DF: fit.DF, N: fit.N, Confidence: opt.Confidence,
-		Cautions: Cautions(), Engine: EngineVersion, Curve: cd,
+		Cautions: fit.Cautions, Engine: EngineVersion, Curve: cd, // the fit's own copy: the fit is this report's alone
 		ZeroHandling: "responses near zero are weighted as the smallest non-zero |fitted response| (response_floor)",
 		Limits:       Limits{Detail: "not computed: the ICH Q2 slope formulas assume a straight line; the precision profile's working range takes their place for non-linear curves"},
 	}

@@ -228,11 +228,11 @@ func groupReplicates(x, lx, y, w []float64, sc *scratch) *replicates {
 	n := len(x)
 	var level []int
 	var buf []float64
-	r := new(replicates)
+	var r *replicates
 	if sc != nil {
 		level, buf, r = sc.i.take(n), sc.f.take(4*n), &sc.rep
 	} else {
-		level, buf = make([]int, n), make([]float64, 4*n)
+		level, buf, r = make([]int, n), make([]float64, 4*n), new(replicates)
 	}
 	ux := buf[:0:n]
 	var index map[float64]int // for many readings; a linear search otherwise

@@ -336,12 +336,15 @@ func (p *logisticProfile) weight(i int) float64 {
 // Kaufman's 1975 approximation of its Jacobian): each step projects the
 // model's derivatives in b and ln c off the span of (h, 1 − h) and solves
 // the 2×2 damped normal equations; a step is taken only when it lowers
-// the weighted sum of squares. At most 8 steps, ending after a step that
-// lowers it by less than 1e-6 of the whole sum (pe is the pure-error sum
+// the weighted sum of squares. At most 10 steps, ending after a step that
+// lowers it by less than 1e-12 of the whole sum (the solver's own
+// relative-reduction tolerance, FTol's default; pe is the pure-error sum
 // of squares of readings grouped into levels, which the levels' sum
-// leaves out). The solver, not this, decides convergence: this only brings the
-// start near the minimum, where the Levenberg–Marquardt iterations on
-// all four coefficients need few steps. It leaves s as it is when the
+// leaves out). The solver, not this, decides convergence: this only
+// brings the start near the minimum, where Levenberg–Marquardt on all
+// four coefficients usually confirms it in one iteration (the profile's
+// steps are cheaper than the solver's: two unknowns and no
+// factorisation). It leaves s as it is when the
 // profile cannot be evaluated at the start.
 func refineLogistic(x, lx, y, w, s []float64, pe float64, scratch []float64) {
 	n := len(x)
@@ -352,7 +355,7 @@ func refineLogistic(x, lx, y, w, s []float64, pe float64, scratch []float64) {
 		return
 	}
 	mu := 1e-3
-	for it := 0; it < 8 && ss > 0; it++ {
+	for it := 0; it < 10 && ss > 0; it++ {
 		// Derivatives of the model in b and ln c: with k = h·(1 − h),
 		// ∂f/∂b = −(a − d)·k·u and ∂f/∂ln c = (a − d)·k·b.
 		var vbb, vbl, vll, hb, hl, ob, ol, gb, gl float64
@@ -398,7 +401,7 @@ func refineLogistic(x, lx, y, w, s []float64, pe float64, scratch []float64) {
 			}
 			na, nd, nss, ng, ok := p.at(nb, nlc)
 			if ok && nss < ss && (na-nd)*(s[0]-s[3]) > 0 {
-				improved = ss-nss > 1e-6*(ss+pe)
+				improved = ss-nss > 1e-12*(ss+pe)
 				b, lc, a, d, ss, gram = nb, nlc, na, nd, nss, ng
 				mu = max(mu/10, 1e-9)
 				break
