@@ -890,6 +890,35 @@ func (cv *curveVar) slopeLn(hl float64) float64 {
 	return -(cv.beta[0] - cv.beta[3]) * g * hl * cv.beta[1]
 }
 
+// profile4 is the precision profile of the 4PL over a grid even in ln x,
+// with fv4, varAt and slopeLn written out for its inner loop: point i has
+// x = x1·xq^i, e^(b·ln(x/c)) = e1·eq^i and ln(x/c) = u1 + i·du; it sets
+// xs[i] = x and cvs[i] = 100·√v/|df/d ln x|, the CV in %, with the
+// covariance's symmetry used (10 products instead of 16).
+func (cv *curveVar) profile4(xs, cvs []float64, x1, xq, e1, eq, u1, du float64) {
+	a, b, d := cv.beta[0], cv.beta[1], cv.beta[3]
+	m, bc := a-d, cv.bc
+	c := (*[16]float64)(cv.cov[:16])
+	c00, c01, c02, c03 := c[0], c[1], c[2], c[3]
+	c11, c12, c13 := c[5], c[6], c[7]
+	c22, c23, c33 := c[10], c[11], c[15]
+	cvs = cvs[:len(xs)]
+	x, e := x1, e1
+	for i := range xs {
+		u := u1 + du*float64(i)
+		h := 1 / (1 + e)
+		lg := e * h
+		hl := h * lg
+		k := m * hl
+		g0, g1, g2, g3 := h, -k*u, k*bc, lg
+		v := cv.s2m*cv.invWeight(d+m*h) +
+			c00*g0*g0 + c11*g1*g1 + c22*g2*g2 + c33*g3*g3 +
+			2*(c01*g0*g1+c02*g0*g2+c03*g0*g3+c12*g1*g2+c13*g1*g3+c23*g2*g3)
+		xs[i], cvs[i] = x, 100*math.Sqrt(v)/math.Abs(m*b*hl)
+		x, e = x*xq, e*eq
+	}
+}
+
 // fv4 is f and the variance of the 4PL given h = 1/(1 + eᵗ) and L = 1 − h
 // at t = b·u (evalU with g = 1 written out).
 func (cv *curveVar) fv4(h, lg, u float64) (fx, v float64) {
@@ -1010,38 +1039,33 @@ func (r *Report) profile(levels []*curveLevel, cd *CurveDetails) {
 	}
 	// The CV is s(x̂0)/x = √v/|x·f′(x)|, and x·f′(x) = df/d ln x, which
 	// for a logistic needs no x (slopeLn).
+	var xs, cvs [n]float64
+	if geo {
+		cv.profile4(xs[:], cvs[:], xi, xq, ei, eq, lo-cv.lnc, dt)
+		xs[n-1] = r.Range.High
+	}
 	for i := range n {
 		t := lo + (hi-lo)*float64(i)/float64(n-1)
-		var x, v, dl float64
+		var x, cvPct float64
 		switch {
 		case geo:
-			x = xi
-			if i == n-1 {
-				x, t = r.Range.High, hi
-			}
-			h := 1 / (1 + ei)
-			_, v = cv.fv4(h, ei*h, t-cv.lnc)
-			dl = cv.slopeLn(ei * h * h)
-			xi, ei = xi*xq, ei*eq
+			x, cvPct = xs[i], cvs[i]
 		case cv.logistic:
 			x = math.Exp(t)
 			if i == n-1 {
 				x, t = r.Range.High, hi
 			}
 			// ln(x/c) = t − ln c: the grid is even in ln x.
-			var hl float64
-			_, v, hl = cv.atLogU(t - cv.lnc)
-			dl = cv.slopeLn(hl)
+			_, v, hl := cv.atLogU(t - cv.lnc)
+			cvPct = 100 * math.Sqrt(v) / math.Abs(cv.slopeLn(hl))
 		default:
 			x = math.Exp(t)
 			if i == n-1 {
 				x = r.Range.High
 			}
-			var sl float64
-			_, v, sl = cv.at(x)
-			dl = x * sl
+			_, v, sl := cv.at(x)
+			cvPct = 100 * math.Sqrt(v) / math.Abs(x*sl)
 		}
-		cvPct := 100 * math.Sqrt(v) / math.Abs(dl)
 		pp := ProfilePoint{X: x}
 		if Finite(cvPct) {
 			pp.CVPct, pp.OK = cvPct, true

@@ -172,14 +172,20 @@ func TestCurveReportPowerOfMean(t *testing.T) {
 }
 
 // TestCurveProfileMatchesPrediction: each point of the precision profile
-// (whose 4PL grid walks geometric sequences instead of evaluating
-// exponentials) is the CV of the delta-method standard error that Predict
-// reports, through its own evaluation of the curve, for the mean of
-// Replicates readings at the curve's response there; the grid's x are
-// e^(ln x_low + i·Δ) to rounding.
+// (whose 4PL grid walks geometric sequences, with its variance written
+// out, instead of evaluating exponentials) is the CV of the delta-method
+// standard error that Predict reports, through its own evaluation of the
+// curve, for the mean of Replicates readings at the curve's response
+// there; the grid's x are e^(ln x_low + i·Δ) to rounding. The 4PL under
+// every weighting, the 5PL (the general path) under 1/y².
 func TestCurveProfileMatchesPrediction(t *testing.T) {
-	for _, m := range []Model{FourPL, FivePL} {
-		r, err := Fit(elisaPoints(), Options{Model: m, Weighting: WeightInvY2})
+	cases := []struct {
+		m Model
+		w Weighting
+	}{{FourPL, WeightNone}, {FourPL, WeightInvY2}, {FourPL, WeightInvS2}, {FourPL, WeightVarPower}, {FivePL, WeightInvY2}}
+	for _, tc := range cases {
+		m := tc.m
+		r, err := Fit(elisaPoints(), Options{Model: m, Weighting: tc.w})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -201,7 +207,7 @@ func TestCurveProfileMatchesPrediction(t *testing.T) {
 				t.Fatalf("%s point %d: %v (ok %v)", m, i, err, pp.OK)
 			}
 			if cv := 100 * pr.StandardError / pr.Concentration; !closeTo(pp.CVPct, cv, 1e-9, 0) {
-				t.Errorf("%s point %d (x = %v): profile CV %v %%, prediction %v %%", m, i, pp.X, pp.CVPct, cv)
+				t.Errorf("%s %s point %d (x = %v): profile CV %v %%, prediction %v %%", m, tc.w, i, pp.X, pp.CVPct, cv)
 			}
 		}
 	}

@@ -290,25 +290,34 @@ type logisticProfile struct {
 // at evaluates the profile at (b, lc = ln c): the asymptotes, the weighted
 // sum of squares and the Gram sums of the basis (h, 1 − h); ok is false
 // when the basis is degenerate or a value is not finite.
+// w must not be nil.
 func (p *logisticProfile) at(b, lc float64) (a, d, ss float64, gram [3]float64, ok bool) {
 	var shh, sho, soo, shy, soy float64
+	n := len(p.x)
+	x, lx, y, w, hs, us := p.x[:n], p.lx[:n], p.y[:n], p.w[:n], p.h[:n], p.u[:n]
 	h, u, px := 1.0, 0.0, math.NaN()
-	for i, xi := range p.x {
+	for i, xi := range x {
 		if xi != px {
 			px, h, u = xi, 1.0, 0.0
 			if xi > 0 {
-				u = p.lx[i] - lc
-				h, _, _ = core4(b * u)
+				u = lx[i] - lc
+				// core4(b·u) written out (the start's inner loop).
+				t := b * u
+				e := math.Exp(-math.Abs(t))
+				h = 1 / (1 + e)
+				if t > 0 {
+					h *= e
+				}
 			}
 		}
-		p.h[i], p.u[i] = h, u
-		wi := p.weight(i)
+		hs[i], us[i] = h, u
+		wi := w[i]
 		o := 1 - h
 		shh += wi * h * h
 		sho += wi * h * o
 		soo += wi * o * o
-		shy += wi * h * p.y[i]
-		soy += wi * o * p.y[i]
+		shy += wi * h * y[i]
+		soy += wi * o * y[i]
 	}
 	det := shh*soo - sho*sho
 	if !(det > 1e-12*shh*soo) {
@@ -316,18 +325,11 @@ func (p *logisticProfile) at(b, lc float64) (a, d, ss float64, gram [3]float64, 
 	}
 	a = (shy*soo - soy*sho) / det
 	d = (soy*shh - shy*sho) / det
-	for i, yi := range p.y {
-		r := yi - d - (a-d)*p.h[i]
-		ss += p.weight(i) * r * r
+	for i, yi := range y {
+		r := yi - d - (a-d)*hs[i]
+		ss += w[i] * r * r
 	}
 	return a, d, ss, [3]float64{shh, sho, soo}, Finite(a, d, ss)
-}
-
-func (p *logisticProfile) weight(i int) float64 {
-	if p.w == nil {
-		return 1
-	}
-	return p.w[i]
 }
 
 // refineLogistic improves a 4PL start whose four coefficients are all
@@ -344,7 +346,7 @@ func (p *logisticProfile) weight(i int) float64 {
 // brings the start near the minimum, where Levenberg–Marquardt on all
 // four coefficients usually confirms it in one iteration (the profile's
 // steps are cheaper than the solver's: two unknowns and no
-// factorisation). It leaves s as it is when the
+// factorisation). w must not be nil. It leaves s as it is when the
 // profile cannot be evaluated at the start.
 func refineLogistic(x, lx, y, w, s []float64, pe float64, scratch []float64) {
 	n := len(x)
@@ -361,7 +363,7 @@ func refineLogistic(x, lx, y, w, s []float64, pe float64, scratch []float64) {
 		var vbb, vbl, vll, hb, hl, ob, ol, gb, gl float64
 		m := a - d
 		for i, h := range p.h {
-			wi := p.weight(i)
+			wi := w[i]
 			k := m * h * (1 - h)
 			jb, jl := -k*p.u[i], k*b
 			r := y[i] - d - m*h
