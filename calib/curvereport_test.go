@@ -212,3 +212,38 @@ func TestCurveProfileMatchesPrediction(t *testing.T) {
 		}
 	}
 }
+
+// TestCurveReportPointsMatchCurve: every point of a 4PL report, fitted or
+// excluded, carries the curve's value at its concentration (to 1e-12 of
+// its response) and a back-calculated value that the curve maps back to
+// its response; excluded readings have weight 0, and the leverages of the
+// fitted readings sum to the number of coefficients (the trace of the hat
+// matrix, common least-squares algebra).
+func TestCurveReportPointsMatchCurve(t *testing.T) {
+	pts := elisaPoints()
+	pts[5].Excluded, pts[10].Excluded = true, true
+	r, err := Fit(pts, Options{Model: FourPL, Weighting: WeightInvY2})
+	if err != nil || r.Curve.Outcome != "converged" {
+		t.Fatal(err)
+	}
+	c := curveOf(FourPL)
+	var lev float64
+	for i, p := range r.Points {
+		want := c.Eval(p.X, r.Coefficients, nil)
+		if !closeTo(p.Fitted, want, 0, 1e-12*math.Abs(p.Y)) {
+			t.Errorf("point %d (excluded %v): fitted %v, curve %v", i, p.Excluded, p.Fitted, want)
+		}
+		if back := c.Eval(p.BackCalculated, r.Coefficients, nil); !p.HasBackCalc || !closeTo(back, p.Y, 1e-9, 0) {
+			t.Errorf("point %d: back-calculated %v maps to %v, response %v", i, p.BackCalculated, back, p.Y)
+		}
+		if p.Excluded != (p.Weight == 0) {
+			t.Errorf("point %d: excluded %v, weight %v", i, p.Excluded, p.Weight)
+		}
+		if !p.Excluded {
+			lev += p.Leverage
+		}
+	}
+	if !closeTo(lev, 4, 1e-9, 0) {
+		t.Errorf("leverages sum to %v, want 4", lev)
+	}
+}
