@@ -337,9 +337,14 @@ func (p *logisticProfile) at(b, lc float64) (a, d, ss float64, gram [3]float64, 
 // and d eliminated (variable projection, Golub and Pereyra 1973, with
 // Kaufman's 1975 approximation of its Jacobian): each step projects the
 // model's derivatives in b and ln c off the span of (h, 1 − h) and solves
-// the 2×2 damped normal equations; a step is taken only when it lowers
-// the weighted sum of squares. At most 10 steps, ending after a step that
-// lowers it by less than 1e-12 of the whole sum (the solver's own
+// the 2×2 damped normal equations; once a step has lowered the sum by
+// less than 1 % (near the minimum), the residuals' curvature Σw·r·∂²f is
+// taken off the matrix where that leaves it positive definite (Newton's
+// step, which converges quadratically where Gauss–Newton converges
+// linearly on a curve with non-zero residuals). A step is taken only when
+// it lowers the weighted sum of squares. At most 10 steps, ending when a
+// trial step cannot lower the sum beyond rounding (1e-14 of it) or after
+// a step that lowers it by less than 1e-12 of the whole sum (the solver's own
 // relative-reduction tolerance, FTol's default; pe is the pure-error sum
 // of squares of readings grouped into levels, which the levels' sum
 // leaves out). The solver, not this, decides convergence: this only
@@ -357,15 +362,17 @@ func refineLogistic(x, lx, y, w, s []float64, pe float64, scratch []float64) {
 		return
 	}
 	mu := 1e-3
+	local := false // the last step lowered SS by less than 1 %
 	for it := 0; it < 10 && ss > 0; it++ {
 		// Derivatives of the model in b and ln c: with k = h·(1 − h),
 		// ∂f/∂b = −(a − d)·k·u and ∂f/∂ln c = (a − d)·k·b.
-		var vbb, vbl, vll, hb, hl, ob, ol, gb, gl float64
+		var vbb, vbl, vll, hb, hl, ob, ol, gb, gl, sbb, sbl, sll float64
 		m := a - d
 		for i, h := range p.h {
 			wi := w[i]
+			u := p.u[i]
 			k := m * h * (1 - h)
-			jb, jl := -k*p.u[i], k*b
+			jb, jl := -k*u, k*b
 			r := y[i] - d - m*h
 			vbb += wi * jb * jb
 			vbl += wi * jb * jl
@@ -376,6 +383,11 @@ func refineLogistic(x, lx, y, w, s []float64, pe float64, scratch []float64) {
 			ol += wi * (1 - h) * jl
 			gb += wi * jb * r
 			gl += wi * jl * r
+			// The residuals' curvature, Σw·r·∂²f.
+			fbb, fbl, fll := logisticCurvature(k, h, u, b)
+			sbb += wi * r * fbb
+			sbl += wi * r * fbl
+			sll += wi * r * fll
 		}
 		// Project off the basis: A = V − Pᵀ·G⁻¹·P.
 		shh, sho, soo := gram[0], gram[1], gram[2]
@@ -386,6 +398,12 @@ func refineLogistic(x, lx, y, w, s []float64, pe float64, scratch []float64) {
 		abb := vbb - proj(hb, ob, hb, ob)
 		abl := vbl - proj(hb, ob, hl, ol)
 		all := vll - proj(hl, ol, hl, ol)
+		// Newton's matrix, A − S, where it is positive definite (near the
+		// minimum): it converges quadratically where Gauss–Newton's A
+		// alone converges linearly on a curve with non-zero residuals.
+		if nbb, nbl, nll := abb-sbb, abl-sbl, all-sll; local && nbb > 0 && nll > 0 && nbb*nll > nbl*nbl {
+			abb, abl, all = nbb, nbl, nll
+		}
 		improved := false
 		for try := 0; try < 6; try++ {
 			m11, m22 := abb*(1+mu), all*(1+mu)
@@ -402,8 +420,12 @@ func refineLogistic(x, lx, y, w, s []float64, pe float64, scratch []float64) {
 				continue
 			}
 			na, nd, nss, ng, ok := p.at(nb, nlc)
+			if ok && nss >= ss && nss-ss <= 1e-14*(ss+pe) {
+				break // no lower sum within rounding: the minimum
+			}
 			if ok && nss < ss && (na-nd)*(s[0]-s[3]) > 0 {
 				improved = ss-nss > 1e-12*(ss+pe)
+				local = ss-nss < 1e-2*(ss+pe)
 				b, lc, a, d, ss, gram = nb, nlc, na, nd, nss, ng
 				mu = max(mu/10, 1e-9)
 				break
@@ -415,4 +437,13 @@ func refineLogistic(x, lx, y, w, s []float64, pe float64, scratch []float64) {
 		}
 	}
 	s[0], s[1], s[2], s[3] = a, b, math.Exp(lc), d
+}
+
+// logisticCurvature returns the 4PL's second derivatives in b and ln c at
+// a reading with h = 1/(1 + (x/c)^b), u = ln(x/c) and k = (a − d)·h·(1 − h):
+// ∂²f/∂b² = k·(1 − 2h)·u², ∂²f/∂b∂ln c = k·(1 − b·u·(1 − 2h)) and
+// ∂²f/∂(ln c)² = k·(1 − 2h)·b².
+func logisticCurvature(k, h, u, b float64) (fbb, fbl, fll float64) {
+	q := 1 - 2*h
+	return k * q * u * u, k * (1 - b*u*q), k * q * b * b
 }
