@@ -1,7 +1,9 @@
 package calib
 
 import (
+	"errors"
 	"math"
+	"slices"
 	"testing"
 )
 
@@ -186,5 +188,30 @@ func TestCurveInverseRoundTrip(t *testing.T) {
 				t.Errorf("%s x=%v: inverse %v (%q, %v)", m, x, got, flag, ok)
 			}
 		}
+	}
+}
+
+// TestCurvePredictionOverflowRefused: a response whose concentration is
+// finite but whose diluted concentration is not (a power curve read far
+// above its calibrators, diluted 1e306-fold) is refused as an input
+// error, as for the lines, by both the fit's and the report's Predict,
+// never returned as +Inf.
+func TestCurvePredictionOverflowRefused(t *testing.T) {
+	x, y, w := elisaCurve()
+	fit := fitCurveOrFatal(t, x, y, w, CurveOptions{Model: Power})
+	var ie *InputError
+	if p, err := fit.Predict([]float64{1e3}, 1, 1e306, 0); !errors.As(err, &ie) {
+		t.Errorf("fit: %+v, %v", p, err)
+	}
+	r, err := Fit(elisaPoints(), Options{Model: Power, Weighting: WeightInvY2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if p, err := r.Predict([]float64{1e3}, 1e306, 0); !errors.As(err, &ie) {
+		t.Errorf("report: %+v, %v", p, err)
+	}
+	// The same response undiluted is a number, flagged above the range.
+	if p, err := r.Predict([]float64{1e3}, 1, 0); err != nil || !Finite(p.Concentration) || !slices.Contains(p.Flags, FlagAboveRange) {
+		t.Errorf("undiluted: %+v, %v", p, err)
 	}
 }

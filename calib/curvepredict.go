@@ -68,6 +68,10 @@ func (f *CurveFit) Predict(responses []float64, w0, dilution, confidence float64
 		return pr, nil
 	}
 	pr.Concentration = x0 * dilution
+	if !Finite(pr.Concentration) {
+		// x̂0 is finite but its diluted value is not: as for the lines.
+		return Prediction{}, inputErr("responses", "the result is outside the numerically usable range")
+	}
 	pr.Flags = f.Range.appendFlags(pr.Flags, x0)
 	grad := make([]float64, len(beta))
 	c.Eval(x0, beta, grad)
@@ -79,6 +83,9 @@ func (f *CurveFit) Predict(responses []float64, w0, dilution, confidence float64
 		return pr, nil
 	}
 	pr.StandardError = se * dilution
+	if !Finite(pr.StandardError) {
+		return Prediction{}, inputErr("responses", "the result is outside the numerically usable range")
+	}
 	t := studentT(1-(1-confidence)/2, f.DF)
 	lo, hi := (x0-t*se)*dilution, (x0+t*se)*dilution
 	if !Finite(lo, hi) {

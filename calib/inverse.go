@@ -133,6 +133,10 @@ func (r *Report) Predict(responses []float64, dilution float64, confidence float
 		if err := r.predictCurve(y0, m, confidence, &pr); err != nil {
 			return Prediction{}, err
 		}
+		if !Finite(pr.Concentration, pr.StandardError, pr.Interval.Low, pr.Interval.High) {
+			// x̂0 is finite but its diluted value is not: as for the lines.
+			return Prediction{}, inputErr("responses", "the result is outside the numerically usable range")
+		}
 		return pr, nil
 	}
 	if x1, x2, amb := r.rootsInRange(y0); amb {
