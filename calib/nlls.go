@@ -271,28 +271,31 @@ func groupReplicates(x, lx, y, w []float64, sc *scratch) *replicates {
 	if m == n {
 		return r
 	}
-	*r = replicates{x: ux, y: buf[n : n+m : n+m], w: buf[2*n : 2*n+m : 2*n+m], level: level, yr: y}
+	ym, wm := buf[n:n+m:n+m], buf[2*n:2*n+m:2*n+m]
+	// The sums in locals: accumulating through r would make each reading
+	// wait for the store of the one before.
+	var ynorm, pe float64
 	for i, l := range level {
 		wi := 1.0
 		if w != nil {
 			wi = w[i]
 		}
-		r.w[l] += wi
-		r.y[l] += wi * y[i]
-		r.ynorm += wi * y[i] * y[i]
+		wm[l] += wi
+		ym[l] += wi * y[i]
+		ynorm += wi * y[i] * y[i]
 	}
-	for l := range r.y {
-		r.y[l] /= r.w[l]
+	for l := range ym {
+		ym[l] /= wm[l]
 	}
 	for i, l := range level {
 		wi := 1.0
 		if w != nil {
 			wi = w[i]
 		}
-		d := y[i] - r.y[l]
-		r.pe += wi * d * d
+		d := y[i] - ym[l]
+		pe += wi * d * d
 	}
-	r.ynorm = math.Sqrt(r.ynorm)
+	*r = replicates{x: ux, y: ym, w: wm, level: level, yr: y, pe: pe, ynorm: math.Sqrt(ynorm)}
 	if lx != nil {
 		r.lx = buf[3*n : 3*n+m : 3*n+m]
 		for i, l := range level {
