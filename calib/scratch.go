@@ -28,6 +28,10 @@ func (s *slab[T]) reset() {
 	s.off = 0
 }
 
+// rewind makes the whole array available again without clearing it (for
+// elements that refer to nothing: take clears what it hands out).
+func (s *slab[T]) rewind() { s.off = 0 }
+
 // scratch is the memory one non-linear fit borrows for its temporaries
 // (the readings' arrays, the grouping into levels, the start's working
 // arrays) and gives back when it returns: nothing taken from it may be
@@ -48,8 +52,8 @@ func getScratch() *scratch { return scratchPool.Get().(*scratch) }
 // release returns sc to scratchPool; sc and everything taken from it must
 // not be used afterwards.
 func (sc *scratch) release() {
-	sc.f.reset()
-	sc.i.reset()
+	sc.f.rewind()
+	sc.i.rewind()
 	sc.levels.reset()
 	sc.ptrs.reset()
 	sc.rep = replicates{}
