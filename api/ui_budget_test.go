@@ -31,12 +31,7 @@ func postBudgetRun(t *testing.T, e *uiEnv) string {
 	var run struct {
 		Curves []struct{ ID string } `json:"curves"`
 	}
-	var stds []map[string]any
-	for i, x := range []float64{0.5, 1, 2, 5, 10, 20, 50} {
-		y := 40 + uiSlope(uiDays)*x
-		stds = append(stds, map[string]any{"analyte": "Pb", "level": "Pb-" + string(rune('1'+i)), "concentration": x,
-			"responses": []float64{y * 1.004, y * 0.997}})
-	}
+	stds := uiPbStandards()
 	y9 := 40 + uiSlope(uiDays)*9.6
 	e.api(t, e.tokens[lab.ScopeRunsWrite], http.MethodPost, "/v1/runs", map[string]any{
 		"method": "fen-metals-budget", "instrument": "fen-icpms-4", "acquired_at": at.Format(time.RFC3339), "operator": "analyst-ines",

@@ -81,12 +81,7 @@ func postContextRun(t *testing.T, e *uiEnv) string {
 		Curves []struct{ ID string } `json:"curves"`
 	}
 	at := uiStart.AddDate(0, 0, uiDays+1)
-	var stds []map[string]any
-	for i, x := range []float64{0.5, 1, 2, 5, 10, 20, 50} {
-		y := 40 + uiSlope(uiDays)*x
-		stds = append(stds, map[string]any{"analyte": "Pb", "level": "Pb-" + string(rune('1'+i)), "concentration": x,
-			"responses": []float64{y * 1.004, y * 0.997}})
-	}
+	stds := uiPbStandards()
 	e.api(t, e.tokens[lab.ScopeRunsWrite], http.MethodPost, "/v1/runs", map[string]any{
 		"method": uiMethod, "instrument": uiInstrument, "acquired_at": at.Format(time.RFC3339), "operator": "analyst-ines",
 		"standards": stds, "samples": []map[string]any{{"id": "PB-W-17", "analyte": "Pb", "responses": []float64{9000, 9010}}},

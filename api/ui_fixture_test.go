@@ -100,6 +100,19 @@ func uiSlope(d int) float64 {
 	return s
 }
 
+// uiPbStandards returns the seven duplicate Pb standards (0.5–50 ug/L, levels
+// Pb-1…Pb-7) on the line 40 + uiSlope(uiDays)·x that the budget, top-down
+// and context pages post.
+func uiPbStandards() []map[string]any {
+	var stds []map[string]any
+	for i, x := range []float64{0.5, 1, 2, 5, 10, 20, 50} {
+		y := 40 + uiSlope(uiDays)*x
+		stds = append(stds, map[string]any{"analyte": "Pb", "level": "Pb-" + string(rune('1'+i)), "concentration": x,
+			"responses": []float64{y * 1.004, y * 0.997}})
+	}
+	return stds
+}
+
 // postRun posts one Pb run of duplicate standards on the line
 // 40 + slope·x (with a small deterministic scatter) and returns its curve id.
 func (e *uiEnv) postRun(t *testing.T, at time.Time, slope float64, levels []float64) string {

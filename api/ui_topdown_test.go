@@ -33,12 +33,7 @@ func postTopDownRun(t *testing.T, e *uiEnv) string {
 		ID     string                `json:"id"`
 		Curves []struct{ ID string } `json:"curves"`
 	}
-	var stds []map[string]any
-	for i, x := range []float64{0.5, 1, 2, 5, 10, 20, 50} {
-		y := 40 + uiSlope(uiDays)*x
-		stds = append(stds, map[string]any{"analyte": "Pb", "level": "Pb-" + string(rune('1'+i)), "concentration": x,
-			"responses": []float64{y * 1.004, y * 0.997}})
-	}
+	stds := uiPbStandards()
 	e.api(t, e.tokens[lab.ScopeRunsWrite], http.MethodPost, "/v1/runs", map[string]any{
 		"method": "fen-metals-td", "instrument": "fen-icpms-4", "acquired_at": at.Format(time.RFC3339), "operator": "analyst-ines",
 		"standards": stds}, http.StatusCreated, &run)

@@ -1045,26 +1045,23 @@ func (r *Report) profile(levels []*curveLevel, cd *CurveDetails) {
 		xs[n-1] = r.Range.High
 	}
 	for i := range n {
-		t := lo + (hi-lo)*float64(i)/float64(n-1)
 		var x, cvPct float64
-		switch {
-		case geo:
+		if geo {
 			x, cvPct = xs[i], cvs[i]
-		case cv.logistic:
+		} else {
+			t := lo + (hi-lo)*float64(i)/float64(n-1)
 			x = math.Exp(t)
 			if i == n-1 {
 				x, t = r.Range.High, hi
 			}
-			// ln(x/c) = t − ln c: the grid is even in ln x.
-			_, v, hl := cv.atLogU(t - cv.lnc)
-			cvPct = 100 * math.Sqrt(v) / math.Abs(cv.slopeLn(hl))
-		default:
-			x = math.Exp(t)
-			if i == n-1 {
-				x = r.Range.High
+			if cv.logistic {
+				// ln(x/c) = t − ln c: the grid is even in ln x.
+				_, v, hl := cv.atLogU(t - cv.lnc)
+				cvPct = 100 * math.Sqrt(v) / math.Abs(cv.slopeLn(hl))
+			} else {
+				_, v, sl := cv.at(x)
+				cvPct = 100 * math.Sqrt(v) / math.Abs(x*sl)
 			}
-			_, v, sl := cv.at(x)
-			cvPct = 100 * math.Sqrt(v) / math.Abs(x*sl)
 		}
 		pp := ProfilePoint{X: x}
 		if Finite(cvPct) {

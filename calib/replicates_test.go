@@ -91,7 +91,7 @@ func TestLogisticStartRefined(t *testing.T) {
 		lx[i] = math.Log(v)
 	}
 	rough := startLogistic(x, lx, y, levelEnds(x, y), func(int) (float64, bool) { return 0, false }, make([]float64, 3*len(x)))
-	refineAsymptotes(x, lx, y, w, rough, func(int) (float64, bool) { return 0, false })
+	refineAsymptotes(x, lx, y, w, rough, func(int) (float64, bool) { return 0, false }, make([]float64, 2*len(x)))
 	ss := func(beta []float64) float64 {
 		var s float64
 		for i := range x {

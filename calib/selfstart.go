@@ -58,7 +58,7 @@ func selfStart(m Model, x, lx, y, w []float64, opt CurveOptions, lower, upper []
 		if opt.Fixed == nil || !slices.ContainsFunc(opt.Fixed[:4], func(v float64) bool { return !math.IsNaN(v) }) {
 			refineLogistic(gx, glx, gy, gw, s, pe, sc.f.take(2*len(gx)))
 		} else {
-			refineAsymptotes(gx, glx, gy, gw, s, fixed)
+			refineAsymptotes(gx, glx, gy, gw, s, fixed, sc.f.take(2*len(gx)))
 		}
 	case FivePL:
 		o := opt
@@ -237,43 +237,20 @@ func startExp(x, y []float64, e [4]float64, offset bool, fixed func(int) (float6
 
 // refineAsymptotes replaces a and d of the 4PL start s by the weighted
 // least-squares solution of y = a·h + d·(1 − h), h = 1/(1 + (x/c)^b) at
-// the start's b and c, when neither is fixed and the solution is finite
-// and keeps the sign of a − d.
-func refineAsymptotes(x, lx, y, w, s []float64, fixed func(int) (float64, bool)) {
+// the start's b and c (the profile's asymptotes, logisticProfile.at), when
+// neither is fixed and the solution is finite and keeps the sign of
+// a − d. w must not be nil; scratch is 2·len(x) of memory.
+func refineAsymptotes(x, lx, y, w, s []float64, fixed func(int) (float64, bool), scratch []float64) {
 	if _, ok := fixed(0); ok {
 		return
 	}
 	if _, ok := fixed(3); ok {
 		return
 	}
-	b, lc := s[1], math.Log(s[2])
-	var shh, sho, soo, shy, soy float64
-	h, px := 1.0, math.NaN() // h at px, kept for the replicates that follow
-	for i, xi := range x {
-		if xi != px {
-			px, h = xi, 1.0
-			if xi > 0 {
-				h = 1 / (1 + math.Exp(b*(lx[i]-lc)))
-			}
-		}
-		wi := 1.0
-		if w != nil {
-			wi = w[i]
-		}
-		o := 1 - h
-		shh += wi * h * h
-		sho += wi * h * o
-		soo += wi * o * o
-		shy += wi * h * y[i]
-		soy += wi * o * y[i]
-	}
-	det := shh*soo - sho*sho
-	if !(det > 1e-12*shh*soo) {
-		return
-	}
-	a := (shy*soo - soy*sho) / det
-	d := (soy*shh - shy*sho) / det
-	if Finite(a, d) && (a-d)*(s[0]-s[3]) > 0 {
+	n := len(x)
+	p := logisticProfile{x: x, lx: lx, y: y, w: w, h: scratch[:n:n], u: scratch[n : 2*n : 2*n]}
+	a, d, _, _, ok := p.at(s[1], math.Log(s[2]))
+	if ok && (a-d)*(s[0]-s[3]) > 0 {
 		s[0], s[3] = a, d
 	}
 }
